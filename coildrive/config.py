@@ -1,0 +1,618 @@
+"""Drive and board files: TOML in, frozen dataclasses out, every error naming its key.
+
+A *drive file* describes the coil, its supply and environment and what the mechanics
+need (pull-in, hold, drop-out currents); a *board file* describes the driver hardware
+(timer, ADC, sense resistor, switch, freewheel path, serial link, scheduler tick).
+All quantities are SI inside (see :mod:`coildrive.units`). Unknown keys are rejected.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import json
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from .errors import InputError
+from .resources import bundled_boards
+from .units import parse_quantity
+
+_MISSING = object()
+
+FREEWHEEL_TYPES = ("diode", "zener", "resistor", "clamp")
+SENSE_POSITIONS = ("coil", "switch")
+HOLD_MODES = ("voltage", "current")
+DISTRIBUTIONS = ("uniform", "normal")
+
+
+# --------------------------------------------------------------------------- data
+@dataclass(frozen=True)
+class Coil:
+    """The coil. Resistance in ohm at ``reference_temp`` (degC), inductance in H.
+
+    Tolerances are fractions (0.1 = +/-10 %); ``tolerance_distribution`` is used by the
+    Monte Carlo (``normal`` reads the tolerance as 3 sigma).
+    """
+
+    resistance: float
+    reference_temp: float
+    inductance: float
+    resistance_tolerance: float
+    inductance_tolerance: float
+    tolerance_distribution: str = "uniform"
+
+
+@dataclass(frozen=True)
+class Supply:
+    """Bus voltage range in V."""
+
+    min: float
+    nominal: float
+    max: float
+
+
+@dataclass(frozen=True)
+class Ambient:
+    """Ambient temperature range in degC."""
+
+    min: float
+    max: float
+
+
+@dataclass(frozen=True)
+class Thermal:
+    """Coil-to-ambient thermal resistance in K/W (0 = no self-heating) and the coil limit in degC."""
+
+    resistance: float
+    max_coil_temp: float
+
+
+@dataclass(frozen=True)
+class PullIn:
+    """Current in A that pulls the armature in; ``margin`` multiplies the worst pull-in time."""
+
+    current: float
+    margin: float
+
+
+@dataclass(frozen=True)
+class Hold:
+    """Hold current in A to be met at every corner, PWM frequency in Hz, mode.
+
+    ``frequency_tolerance`` is the largest relative error accepted between the asked
+    frequency and the one the timer can make.
+    """
+
+    current: float
+    frequency: float
+    mode: str = "voltage"
+    frequency_tolerance: float = 0.01
+
+
+@dataclass(frozen=True)
+class Release:
+    """Drop-out current in A: below it the armature lets go."""
+
+    current: float
+
+
+@dataclass(frozen=True)
+class Armature:
+    """Moving armature (optional). SI: H, m, kg, N, N/m, N*s/m.
+
+    ``spring_preload`` is the spring force at the open position; ``spring_rate`` raises it
+    as the armature closes. ``load_force`` is constant and pushes open.
+    ``restitution`` is the bounce factor at the seated stop (0 = inelastic).
+    """
+
+    inductance_open: float
+    inductance_closed: float
+    stroke: float
+    mass: float
+    spring_preload: float
+    spring_rate: float
+    load_force: float
+    damping: float
+    restitution: float = 0.0
+
+
+@dataclass(frozen=True)
+class Timer:
+    """PWM timer: input clock in Hz, counter width in bits, largest prescaler divide ratio.
+
+    ``prescalers`` lists the only divide ratios the timer has, for timers with a fixed
+    set (empty: every ratio 1..prescaler_max).
+    """
+
+    clock: float
+    bits: int
+    prescaler_max: int
+    prescalers: tuple[int, ...] = ()
+
+
+@dataclass(frozen=True)
+class Adc:
+    """ADC: resolution in bits, reference in V, sample rate in Hz (samples per second)."""
+
+    bits: int
+    reference: float
+    sample_rate: float
+
+
+@dataclass(frozen=True)
+class Sense:
+    """Current-sense resistor in ohm, amplifier gain (V/V), position ``coil`` or ``switch``.
+
+    ``coil``: in series with the coil, reads the current always. ``switch``: between the
+    switch source and ground, reads zero while the switch is off.
+    """
+
+    resistance: float
+    gain: float
+    position: str
+
+
+@dataclass(frozen=True)
+class SupplySense:
+    """Bus-voltage divider ratio: bus voltage / voltage at the ADC pin (>= 1)."""
+
+    divider: float
+
+
+@dataclass(frozen=True)
+class Switch:
+    """Low-side switch: on-resistance in ohm, voltage rating in V, derating fraction.
+
+    The peak switch voltage must stay below ``max_voltage * derating``.
+    """
+
+    on_resistance: float
+    max_voltage: float
+    derating: float = 0.8
+
+
+@dataclass(frozen=True)
+class Freewheel:
+    """Freewheel path taken when the switch turns off (V and ohm).
+
+    ``diode``: a diode across the coil. ``zener``: diode + Zener in series across the
+    coil. ``resistor``: diode + resistor across the coil. ``clamp``: a clamp (TVS) across
+    the switch, limiting its voltage to ``clamp_voltage``.
+    """
+
+    type: str
+    diode_drop: float = 0.0
+    zener_voltage: float = 0.0
+    resistance: float = 0.0
+    clamp_voltage: float = 0.0
+
+
+@dataclass(frozen=True)
+class Link:
+    """Serial link rate in baud."""
+
+    baud: int
+
+
+@dataclass(frozen=True)
+class Tick:
+    """Firmware scheduler tick rate in Hz (phase durations are counted in ticks)."""
+
+    rate: float
+
+
+@dataclass(frozen=True)
+class Board:
+    """A driver board profile."""
+
+    name: str
+    description: str
+    timer: Timer
+    adc: Adc
+    sense: Sense
+    supply_sense: SupplySense
+    switch: Switch
+    freewheel: Freewheel
+    link: Link
+    tick: Tick
+    source: str = ""
+
+
+@dataclass(frozen=True)
+class Drive:
+    """A drive file resolved against its board: everything the design needs.
+
+    ``switch`` and ``freewheel`` are the effective ones (board values with the drive
+    file's overrides applied).
+    """
+
+    name: str
+    coil: Coil
+    supply: Supply
+    ambient: Ambient
+    thermal: Thermal
+    pull_in: PullIn
+    hold: Hold
+    release: Release
+    board: Board
+    switch: Switch
+    freewheel: Freewheel
+    armature: Armature | None = None
+    source: str = ""
+
+    def input_hash(self) -> str:
+        """SHA-256 (first 16 hex digits) of the parsed inputs as canonical JSON.
+
+        Formatting and comments in the files do not change it; any value does.
+        """
+        data = dataclasses.asdict(self)
+        data.pop("source", None)
+        data["board"].pop("source", None)
+        text = json.dumps(data, sort_keys=True, separators=(",", ":"))
+        return hashlib.sha256(text.encode("utf-8")).hexdigest()[:16]
+
+
+# --------------------------------------------------------------------------- reading
+class _Section:
+    """Reads one TOML table, remembering which keys were used, so that unknown keys fail."""
+
+    def __init__(self, source: str, table: Any, name: str, origins: dict[str, str] | None = None):
+        if not isinstance(table, dict):
+            raise InputError(source, name, f"expected a table [{name}], got {table!r}")
+        self.source = source
+        self.table = table
+        self.name = name
+        self.used: set[str] = set()
+        self.origins = origins or {}
+
+    def where(self, key: str) -> tuple[str, str]:
+        return self.origins.get(key, self.source), f"{self.name}.{key}" if self.name else key
+
+    def _get(self, key: str, default: Any) -> Any:
+        self.used.add(key)
+        if key in self.table:
+            return self.table[key]
+        if default is _MISSING:
+            src, full = self.where(key)
+            raise InputError(src, full, "missing, expected a value here")
+        return default
+
+    def fail(self, key: str, message: str) -> InputError:
+        src, full = self.where(key)
+        return InputError(src, full, message)
+
+    def quantity(self, key: str, dimension: str, default: Any = _MISSING, *,
+                 positive: bool = False, nonnegative: bool = False) -> float:
+        raw = self._get(key, default)
+        src, full = self.where(key)
+        value = parse_quantity(raw, dimension, src, full)
+        if positive and not value > 0:
+            raise InputError(src, full, f"{raw!r} must be greater than zero")
+        if nonnegative and value < 0:
+            raise InputError(src, full, f"{raw!r} must not be negative")
+        return value
+
+    def fraction(self, key: str, default: Any = _MISSING, *, below_one: bool = True) -> float:
+        value = self.quantity(key, "dimensionless", default, nonnegative=True)
+        if below_one and not value < 1:
+            raise self.fail(key, f"{value:g} must be a fraction below 1 (0.1 means 10 %)")
+        return value
+
+    def integer(self, key: str, default: Any = _MISSING, *, low: int, high: int) -> int:
+        raw = self._get(key, default)
+        if isinstance(raw, bool) or not isinstance(raw, int):
+            raise self.fail(key, f"{raw!r} is not a whole number, expected an integer {low}..{high}")
+        if not low <= raw <= high:
+            raise self.fail(key, f"{raw} is out of range, expected an integer {low}..{high}")
+        return raw
+
+    def integer_list(self, key: str, default: Any = _MISSING, *, low: int, high: int) -> tuple[int, ...]:
+        raw = self._get(key, default)
+        if not isinstance(raw, (list, tuple)) or not all(
+                isinstance(v, int) and not isinstance(v, bool) and low <= v <= high for v in raw):
+            raise self.fail(key, f"{raw!r} is not a list of whole numbers {low}..{high}")
+        return tuple(raw)
+
+    def choice(self, key: str, options: tuple[str, ...], default: Any = _MISSING) -> str:
+        raw = self._get(key, default)
+        if raw not in options:
+            raise self.fail(key, f"{raw!r} is not one of {', '.join(map(repr, options))}")
+        return raw
+
+    def text(self, key: str, default: Any = _MISSING) -> str:
+        raw = self._get(key, default)
+        if not isinstance(raw, str):
+            raise self.fail(key, f"{raw!r} is not a string")
+        return raw
+
+    def finish(self) -> None:
+        unknown = sorted(set(self.table) - self.used)
+        if unknown:
+            key = unknown[0]
+            raise self.fail(key, f"unknown key, expected one of: {', '.join(sorted(self.used))}")
+
+
+def _read_toml(path: Path) -> dict:
+    source = str(path)
+    try:
+        text = path.read_bytes()
+    except FileNotFoundError:
+        raise InputError(source, "", "file not found") from None
+    except OSError as err:
+        raise InputError(source, "", f"cannot be read ({err.strerror})") from None
+    try:
+        return tomllib.loads(text.decode("utf-8"))
+    except UnicodeDecodeError:
+        raise InputError(source, "", "is not UTF-8 text, expected a TOML file") from None
+    except tomllib.TOMLDecodeError as err:
+        raise InputError(source, "", f"not valid TOML ({err})") from None
+
+
+def _root_sections(source: str, data: dict, allowed_tables: tuple[str, ...],
+                   allowed_values: tuple[str, ...]) -> None:
+    for key, value in data.items():
+        if isinstance(value, dict):
+            if key not in allowed_tables:
+                raise InputError(source, key,
+                                 f"unknown section [{key}], expected one of: {', '.join(allowed_tables)}")
+        elif key not in allowed_values:
+            raise InputError(source, key,
+                             f"unknown key, expected one of: {', '.join(allowed_values)} or a section")
+
+
+def _table(source: str, data: dict, name: str, required: bool = True) -> dict | None:
+    if name not in data:
+        if required:
+            raise InputError(source, name, f"missing section [{name}]")
+        return None
+    return data[name]
+
+
+def _merged(board_source: str, board_table: dict | None, drive_source: str,
+            drive_table: dict | None) -> tuple[dict, dict[str, str]]:
+    """Key-wise merge of a board section with a drive file's override of it."""
+    merged: dict = {}
+    origins: dict[str, str] = {}
+    for src, table in ((board_source, board_table), (drive_source, drive_table)):
+        if table is None:
+            continue
+        if not isinstance(table, dict):
+            raise InputError(src, "", f"expected a table, got {table!r}")
+        for key, value in table.items():
+            merged[key] = value
+            origins[key] = src
+    return merged, origins
+
+
+def _read_switch(sec: _Section) -> Switch:
+    switch = Switch(
+        on_resistance=sec.quantity("on_resistance", "resistance", nonnegative=True),
+        max_voltage=sec.quantity("max_voltage", "voltage", positive=True),
+        derating=sec.fraction("derating", 0.8, below_one=False),
+    )
+    if not 0 < switch.derating <= 1:
+        raise sec.fail("derating", f"{switch.derating:g} must be in (0, 1], e.g. 0.8")
+    sec.finish()
+    return switch
+
+
+def _read_freewheel(sec: _Section) -> Freewheel:
+    kind = sec.choice("type", FREEWHEEL_TYPES)
+    needs_diode = kind != "clamp"
+    diode = sec.quantity("diode_drop", "voltage", _MISSING if needs_diode else 0.0, nonnegative=True)
+    if needs_diode and not diode > 0:
+        raise sec.fail("diode_drop", f"{diode:g} V must be greater than zero for a {kind} freewheel path")
+    zener = sec.quantity("zener_voltage", "voltage", _MISSING if kind == "zener" else 0.0,
+                         nonnegative=True)
+    if kind == "zener" and not zener > 0:
+        raise sec.fail("zener_voltage", "must be greater than zero for a zener freewheel path")
+    resistance = sec.quantity("resistance", "resistance", _MISSING if kind == "resistor" else 0.0,
+                              nonnegative=True)
+    if kind == "resistor" and not resistance > 0:
+        raise sec.fail("resistance", "must be greater than zero for a resistor freewheel path")
+    clamp = sec.quantity("clamp_voltage", "voltage", _MISSING if kind == "clamp" else 0.0,
+                         nonnegative=True)
+    if kind == "clamp" and not clamp > 0:
+        raise sec.fail("clamp_voltage", "must be greater than zero for a clamp across the switch")
+    sec.finish()
+    return Freewheel(kind, diode, zener, resistance, clamp)
+
+
+def load_board(path: str | Path) -> Board:
+    """Read a board file. Raises :class:`InputError` naming the key on bad input."""
+    path = Path(path)
+    source = str(path)
+    data = _read_toml(path)
+    tables = ("timer", "adc", "sense", "supply_sense", "switch", "freewheel", "link", "tick")
+    _root_sections(source, data, tables, ("name", "description"))
+    root = _Section(source, {k: v for k, v in data.items() if not isinstance(v, dict)}, "")
+    name = root.text("name")
+    description = root.text("description", "")
+
+    def sec(name: str) -> _Section:
+        return _Section(source, _table(source, data, name), name)
+
+    s = sec("timer")
+    timer = Timer(s.quantity("clock", "frequency", positive=True),
+                  s.integer("bits", low=8, high=32),
+                  s.integer("prescaler_max", 1, low=1, high=2**32),
+                  s.integer_list("prescalers", (), low=1, high=2**32))
+    if timer.prescalers and max(timer.prescalers) > timer.prescaler_max:
+        raise s.fail("prescalers", f"{max(timer.prescalers)} is above timer.prescaler_max "
+                     f"({timer.prescaler_max})")
+    s.finish()
+    s = sec("adc")
+    adc = Adc(s.integer("bits", low=6, high=24),
+              s.quantity("reference", "voltage", positive=True),
+              s.quantity("sample_rate", "frequency", positive=True))
+    s.finish()
+    s = sec("sense")
+    sense = Sense(s.quantity("resistance", "resistance", positive=True),
+                  s.quantity("gain", "dimensionless", 1.0, positive=True),
+                  s.choice("position", SENSE_POSITIONS))
+    s.finish()
+    s = sec("supply_sense")
+    supply_sense = SupplySense(s.quantity("divider", "dimensionless"))
+    if supply_sense.divider < 1:
+        raise s.fail("divider", f"{supply_sense.divider:g} is below 1, expected bus voltage / pin voltage >= 1")
+    s.finish()
+    switch = _read_switch(sec("switch"))
+    freewheel = _read_freewheel(sec("freewheel"))
+    s = sec("link")
+    link = Link(s.integer("baud", low=300, high=100_000_000))
+    s.finish()
+    s = sec("tick")
+    tick = Tick(s.quantity("rate", "frequency", positive=True))
+    s.finish()
+    return Board(name, description, timer, adc, sense, supply_sense, switch, freewheel, link,
+                 tick, source)
+
+
+def resolve_board(spec: str, relative_to: Path | None = None) -> Path:
+    """Find a board by bundled name or by path (relative paths against ``relative_to``)."""
+    boards = bundled_boards()
+    if spec in boards:
+        return boards[spec]
+    candidate = Path(spec)
+    if not candidate.is_absolute() and relative_to is not None:
+        candidate = relative_to / candidate
+    if candidate.is_file():
+        return candidate
+    raise InputError("", "", f"unknown board {spec!r}: not a bundled board ({', '.join(boards)}) "
+                     "and no such file")
+
+
+def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
+    """Read a drive file and its board.
+
+    Parameters
+    ----------
+    path : path of the drive file (TOML).
+    board : bundled board name or path; overrides the file's ``board`` key.
+    """
+    path = Path(path)
+    source = str(path)
+    data = _read_toml(path)
+    tables = ("coil", "supply", "ambient", "thermal", "pull_in", "hold", "release", "armature",
+              "switch", "freewheel")
+    _root_sections(source, data, tables, ("board",))
+    if board is not None:
+        try:
+            board_path = resolve_board(str(board), Path.cwd())
+        except InputError as err:
+            raise InputError("--board", "", err.message) from None
+    else:
+        if "board" not in data:
+            raise InputError(source, "board", "missing, expected a bundled board name or a board "
+                             "file path (or give --board)")
+        spec = data["board"]
+        if not isinstance(spec, str):
+            raise InputError(source, "board", f"{spec!r} is not a string")
+        try:
+            board_path = resolve_board(spec, path.parent)
+        except InputError as err:
+            raise InputError(source, "board", err.message) from None
+    brd = load_board(board_path)
+
+    def sec(name: str) -> _Section:
+        return _Section(source, _table(source, data, name), name)
+
+    s = sec("coil")
+    coil = Coil(
+        resistance=s.quantity("resistance", "resistance", positive=True),
+        reference_temp=s.quantity("reference_temp", "temperature", 20.0),
+        inductance=s.quantity("inductance", "inductance", positive=True),
+        resistance_tolerance=s.fraction("resistance_tolerance", 0.0),
+        inductance_tolerance=s.fraction("inductance_tolerance", 0.0),
+        tolerance_distribution=s.choice("tolerance_distribution", DISTRIBUTIONS, "uniform"),
+    )
+    s.finish()
+    s = sec("supply")
+    supply = Supply(s.quantity("min", "voltage", positive=True),
+                    s.quantity("nominal", "voltage", positive=True),
+                    s.quantity("max", "voltage", positive=True))
+    if supply.min > supply.max:
+        raise s.fail("min", f"{supply.min:g} V is above supply.max ({supply.max:g} V), expected min <= max")
+    if not supply.min <= supply.nominal <= supply.max:
+        raise s.fail("nominal", f"{supply.nominal:g} V is outside min..max "
+                     f"({supply.min:g}..{supply.max:g} V)")
+    s.finish()
+    s = sec("ambient")
+    ambient = Ambient(s.quantity("min", "temperature"), s.quantity("max", "temperature"))
+    if ambient.min > ambient.max:
+        raise s.fail("min", f"{ambient.min:g} degC is above ambient.max ({ambient.max:g} degC), "
+                     "expected min <= max")
+    if ambient.min < -273.15:
+        raise s.fail("min", "is below absolute zero")
+    s.finish()
+    s = sec("thermal")
+    thermal = Thermal(s.quantity("resistance", "thermal_resistance", nonnegative=True),
+                      s.quantity("max_coil_temp", "temperature"))
+    if thermal.max_coil_temp <= ambient.max:
+        raise s.fail("max_coil_temp", f"{thermal.max_coil_temp:g} degC is not above ambient.max "
+                     f"({ambient.max:g} degC), expected the coil's temperature limit")
+    s.finish()
+    s = sec("pull_in")
+    pull_in = PullIn(s.quantity("current", "current", positive=True),
+                     s.quantity("margin", "dimensionless", 1.5))
+    if pull_in.margin < 1:
+        raise s.fail("margin", f"{pull_in.margin:g} is below 1, expected a factor >= 1 on the "
+                     "worst-case pull-in time (e.g. 1.5)")
+    s.finish()
+    s = sec("hold")
+    hold = Hold(s.quantity("current", "current", positive=True),
+                s.quantity("frequency", "frequency", positive=True),
+                s.choice("mode", HOLD_MODES, "voltage"),
+                s.fraction("frequency_tolerance", 0.01))
+    if hold.current >= pull_in.current:
+        raise s.fail("current", f"{hold.current:g} A is not below pull_in.current "
+                     f"({pull_in.current:g} A), expected hold < pull-in")
+    if hold.mode == "current":
+        raise s.fail("mode", "'current' (current-mode hold) is not designed yet; use 'voltage'")
+    s.finish()
+    s = sec("release")
+    release = Release(s.quantity("current", "current", positive=True))
+    if release.current >= hold.current:
+        raise s.fail("current", f"{release.current:g} A drop-out is not below hold.current "
+                     f"({hold.current:g} A), expected drop-out < hold")
+    s.finish()
+
+    armature = None
+    if "armature" in data:
+        s = sec("armature")
+        armature = Armature(
+            inductance_open=s.quantity("inductance_open", "inductance", positive=True),
+            inductance_closed=s.quantity("inductance_closed", "inductance", positive=True),
+            stroke=s.quantity("stroke", "length", nonnegative=True),
+            mass=s.quantity("mass", "mass", positive=True),
+            spring_preload=s.quantity("spring_preload", "force", nonnegative=True),
+            spring_rate=s.quantity("spring_rate", "stiffness", nonnegative=True),
+            load_force=s.quantity("load_force", "force", 0.0),
+            damping=s.quantity("damping", "damping", 0.0, nonnegative=True),
+            restitution=s.fraction("restitution", 0.0),
+        )
+        if armature.inductance_closed < armature.inductance_open:
+            raise s.fail("inductance_closed", "is below inductance_open, expected the closed "
+                         "(seated) inductance to be the larger")
+        s.finish()
+
+    merged, origins = _merged(brd.source, dataclasses.asdict(brd.switch), source,
+                              data.get("switch"))
+    switch = _read_switch(_Section(source, merged, "switch", origins))
+    fw_board = dataclasses.asdict(brd.freewheel)
+    fw_drive = data.get("freewheel")
+    if isinstance(fw_drive, dict) and "type" in fw_drive and fw_drive["type"] != brd.freewheel.type:
+        fw_board = {}  # a different freewheel type: the board's values do not apply
+    else:
+        fw_board = {k: v for k, v in fw_board.items() if k == "type" or v}
+    merged, origins = _merged(brd.source, fw_board, source, fw_drive)
+    freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
+    if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:
+        raise InputError(origins.get("clamp_voltage", source), "freewheel.clamp_voltage",
+                         f"{freewheel.clamp_voltage:g} V is not above supply.max ({supply.max:g} V): "
+                         "the clamp would conduct with the switch off")
+    return Drive(path.stem, coil, supply, ambient, thermal, pull_in, hold, release, brd, switch,
+                 freewheel, armature, source)

@@ -1,0 +1,497 @@
+"""The peak-and-hold design: from a :class:`~coildrive.config.Drive` to one Design result.
+
+Decisions (each explained in docs/design-method.md):
+
+* peak duration = worst-corner pull-in time x ``pull_in.margin``, rounded up to whole
+  scheduler ticks plus one tick (a tick-based phase may start anywhere inside a tick);
+* hold duty = the smallest duty whose steady-state mean current meets ``hold.current`` at
+  every corner with the self-heating it causes, rounded up to whole compare counts;
+* a supply-compensated duty table (compare value against supply-sense ADC code);
+* release through the board's freewheel path, checked against the switch rating.
+
+The :class:`Design` holds plain data; the table, JSON, header and plot all read it and
+none of them recomputes physics.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass, field
+
+import numpy as np
+
+from . import __version__
+from .config import Drive
+from .corners import CornerGrid, corner_grid, nominal_point
+from .evaluate import PointResults, evaluate, required_duty
+from .model.circuit import loop
+from .model.pwm import duty_for_mean, pwm_steady_state
+from .timer import TimerSetting, solve_timer
+
+#: Below this the PWM whine is audible (common practice: the upper limit of hearing).
+AUDIBLE_LIMIT_HZ = 20_000.0
+#: Over-current threshold above the highest normal current (common practice).
+OVER_CURRENT_FACTOR = 1.25
+#: Open-load threshold as a fraction of the lowest hold current (common practice).
+OPEN_LOAD_FACTOR = 0.5
+#: Fewest compare steps per PWM period before the duty is called coarse (common practice).
+MIN_DUTY_STEPS = 64
+#: Fewest ADC codes for the hold current before the reading is called coarse (common practice).
+MIN_HOLD_CODES = 10
+#: Entries in the supply-compensated duty table.
+DUTY_TABLE_ENTRIES = 16
+UINT32_MAX = 2**32 - 1
+
+
+@dataclass(frozen=True)
+class Check:
+    """One design check. ``severity`` is ``"error"`` (fails the design) or ``"warning"``."""
+
+    name: str
+    ok: bool
+    detail: str
+    severity: str = "error"
+
+
+@dataclass(frozen=True)
+class Corner:
+    """Figures at one operating corner. SI units, temperatures in degC."""
+
+    label: str
+    supply_v: float
+    ambient_c: float
+    coil_temp_c: float
+    resistance_ohm: float
+    inductance_h: float
+    pull_in_time_s: float
+    peak_end_current_a: float
+    hold_mean_current_a: float
+    hold_ripple_a: float
+    hold_rms_current_a: float
+    hold_conduction: str
+    coil_power_w: float
+    release_time_s: float
+    release_zero_time_s: float
+    peak_switch_voltage_v: float
+    release_energy_j: float
+
+
+@dataclass(frozen=True)
+class PullInResult:
+    """Pull-in: worst-corner time to the pull-in current and the chosen peak duration."""
+
+    current_a: float
+    time_s: float
+    worst_corner: str
+    margin: float
+    peak_time_s: float
+    peak_ticks: int
+    peak_end_current_max_a: float
+
+
+@dataclass(frozen=True)
+class HoldResult:
+    """Hold: the duty as the timer makes it and the currents it gives across corners."""
+
+    mode: str
+    current_a: float
+    frequency_hz: float
+    duty: float
+    compare_ticks: int
+    min_mean_current_a: float
+    min_corner: str
+    max_mean_current_a: float
+    max_corner: str
+    ripple_a: float
+    current_step_a: float
+    coil_power_w: float
+    coil_temp_c: float
+    hottest_corner: str
+    discontinuous_corners: int
+
+
+@dataclass(frozen=True)
+class ReleaseResult:
+    """Release from the top of the hold ripple through the freewheel path."""
+
+    freewheel: str
+    dropout_current_a: float
+    time_s: float
+    zero_time_s: float
+    worst_corner: str
+    lockout_ticks: int
+    peak_switch_voltage_v: float
+    switch_limit_v: float
+    switch_rating_v: float
+    energy_j: float
+
+
+@dataclass(frozen=True)
+class TimerResult:
+    """PWM timer registers. ``prescaler`` and ``period_ticks`` are divide ratio and counts."""
+
+    clock_hz: float
+    bits: int
+    prescaler: int
+    period_ticks: int
+    compare_ticks: int
+    frequency_hz: float
+    target_hz: float
+    frequency_error: float
+
+
+@dataclass(frozen=True)
+class AdcThresholds:
+    """Current thresholds as ADC codes of the current-sense channel, and their currents (A)."""
+
+    volts_per_amp: float
+    full_scale_current_a: float
+    pull_in_code: int
+    hold_code: int
+    over_current_code: int
+    over_current_a: float
+    open_load_code: int
+    open_load_a: float
+    supply_min_code: int
+    supply_max_code: int
+
+
+@dataclass(frozen=True)
+class DutyTable:
+    """Supply-compensated hold: compare value for each supply-sense ADC code (ascending).
+
+    Firmware takes the last entry whose code is <= the measured code (the first entry
+    below it); each entry holds the current at every corner up to the next entry's supply.
+    """
+
+    supply_v: list[float]
+    adc_codes: list[int]
+    compare_ticks: list[int]
+
+
+@dataclass(frozen=True)
+class Design:
+    """One design result: every output (table, JSON, header, plot) is made from this."""
+
+    drive: Drive
+    pull_in: PullInResult
+    hold: HoldResult
+    release: ReleaseResult
+    timer: TimerResult
+    adc: AdcThresholds
+    duty_table: DutyTable
+    corners: list[Corner]
+    nominal: Corner
+    checks: list[Check]
+    cautions: list[str]
+    monte_carlo: dict | None = None
+    version: str = __version__
+    input_hash: str = ""
+    worst_corner_index: int = 0
+    extra: dict = field(default_factory=dict)
+
+    @property
+    def ok(self) -> bool:
+        """True when no error-severity check failed."""
+        return all(c.ok for c in self.checks if c.severity == "error")
+
+    @property
+    def failed(self) -> list[Check]:
+        return [c for c in self.checks if not c.ok and c.severity == "error"]
+
+    def to_dict(self) -> dict:
+        """Plain JSON-ready dict (the ``design --json`` document)."""
+        def clean(value):
+            if isinstance(value, float):
+                return value if math.isfinite(value) else None
+            if isinstance(value, dict):
+                return {k: clean(v) for k, v in value.items()}
+            if isinstance(value, (list, tuple)):
+                return [clean(v) for v in value]
+            return value
+        out = {
+            "coildrive_version": self.version,
+            "input_hash": self.input_hash,
+            "drive": self.drive.name,
+            "board": self.drive.board.name,
+            "ok": self.ok,
+            "pull_in": asdict(self.pull_in),
+            "hold": asdict(self.hold),
+            "release": asdict(self.release),
+            "timer": asdict(self.timer),
+            "adc": asdict(self.adc),
+            "duty_table": asdict(self.duty_table),
+            "nominal": asdict(self.nominal),
+            "corners": [asdict(c) for c in self.corners],
+            "checks": [asdict(c) for c in self.checks],
+            "cautions": list(self.cautions),
+        }
+        if self.monte_carlo is not None:
+            out["monte_carlo"] = self.monte_carlo
+        return clean(out)
+
+
+def _corners(grid: CornerGrid, res: PointResults) -> list[Corner]:
+    out = []
+    for k in range(len(grid)):
+        out.append(Corner(
+            label=grid.label(k),
+            supply_v=float(res.supply[k]), ambient_c=float(res.ambient[k]),
+            coil_temp_c=float(res.coil_temp[k]), resistance_ohm=float(res.loop.r_coil[k]),
+            inductance_h=float(res.loop.inductance[k]), pull_in_time_s=float(res.pull_in_time[k]),
+            peak_end_current_a=float(res.peak_end_current[k]),
+            hold_mean_current_a=float(res.hold.mean[k]), hold_ripple_a=float(res.hold.ripple[k]),
+            hold_rms_current_a=float(res.hold.rms[k]),
+            hold_conduction="discontinuous" if res.hold.dcm[k] else "continuous",
+            coil_power_w=float(res.coil_power[k]), release_time_s=float(res.release_time[k]),
+            release_zero_time_s=float(res.release_zero_time[k]),
+            peak_switch_voltage_v=float(res.peak_switch_voltage[k]),
+            release_energy_j=float(res.release_energy[k]),
+        ))
+    return out
+
+
+def _adc_code(volts: float, reference: float, bits: int) -> int:
+    """ADC code for a pin voltage: ``floor(V / V_ref * 2^bits)``, clipped to full scale."""
+    return int(min(max(math.floor(volts / reference * 2**bits), 0), 2**bits - 1))
+
+
+def _worst(values: np.ndarray, largest: bool = True) -> int:
+    v = np.where(np.isnan(values), np.inf if largest else -np.inf, values)
+    return int(np.argmax(v) if largest else np.argmin(v))
+
+
+def _quantised_compare(drive: Drive, grid: CornerGrid, duty: float, timer: TimerSetting) -> int:
+    """Round the duty up to whole compare counts, adding counts until every corner holds."""
+    period = timer.period_ticks
+    if not math.isfinite(duty):
+        return period
+    compare = min(period, max(0, math.ceil(duty * period - 1e-9)))
+    while compare < period:
+        res = evaluate(drive, grid.supply, grid.ambient, grid.r_factor, grid.l_factor,
+                       compare / period, timer.frequency_hz, 0.0)
+        if np.min(res.hold.mean) >= drive.hold.current:
+            break
+        compare += 1
+    return compare
+
+
+def _duty_table(drive: Drive, grid: CornerGrid, temps: np.ndarray, timer: TimerSetting,
+                entries: int = DUTY_TABLE_ENTRIES) -> DutyTable:
+    """Compare value against supply: the worst corner at each supply holds the current.
+
+    The coil temperatures are those of the lowest-supply corners (the hold current, and so
+    the coil power, stays about the same as the table compensates the supply).
+    """
+    adc = drive.board.adc
+    low = grid.supply == np.min(grid.supply)
+    amb, rf, lf = grid.ambient[low], grid.r_factor[low], grid.l_factor[low]
+    t = np.where(np.isfinite(temps[low]), temps[low], drive.thermal.max_coil_temp)
+    if drive.supply.max > drive.supply.min:
+        volts = np.linspace(drive.supply.min, drive.supply.max, entries)
+    else:
+        volts = np.array([drive.supply.min])
+    period = timer.period_ticks
+    compares = []
+    for v in volts:
+        lp = loop(drive, np.full_like(amb, v), t, rf, lf)
+        need = duty_for_mean(drive.hold.current, timer.frequency_hz, lp.v_on, lp.r_on, lp.r_off,
+                             lp.v_off, lp.inductance)
+        d = 1.0 if np.any(np.isnan(need)) else float(np.max(need))
+        compares.append(int(min(period, math.ceil(d * period - 1e-9))))
+    codes = [_adc_code(v / drive.board.supply_sense.divider, adc.reference, adc.bits) for v in volts]
+    return DutyTable([float(v) for v in volts], codes, compares)
+
+
+def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
+    """Design the peak-and-hold drive for ``drive`` (see the module docstring).
+
+    ``samples`` > 0 adds a tolerance Monte Carlo of that many points (see
+    :func:`coildrive.montecarlo.monte_carlo`).
+    """
+    board = drive.board
+    grid = corner_grid(drive)
+    timer = solve_timer(board.timer.clock, board.timer.bits, board.timer.prescaler_max,
+                        drive.hold.frequency, drive.hold.frequency_tolerance,
+                        board.timer.prescalers)
+    f_hold = timer.frequency_hz
+    duty_exact, _ = required_duty(drive, grid.supply, grid.ambient, grid.r_factor, grid.l_factor,
+                                  f_hold)
+    compare = _quantised_compare(drive, grid, duty_exact, timer)
+    duty = compare / timer.period_ticks
+
+    # Pull-in at the settled temperatures, then the peak time from the worst corner.
+    first = evaluate(drive, grid.supply, grid.ambient, grid.r_factor, grid.l_factor, duty, f_hold, 0.0)
+    k_pull = _worst(first.pull_in_time)
+    t_pull = float(first.pull_in_time[k_pull])
+    tick_rate = board.tick.rate
+    if math.isfinite(t_pull):
+        peak_ticks = math.ceil(t_pull * drive.pull_in.margin * tick_rate - 1e-9) + 1
+    else:
+        peak_ticks = 0
+    peak_time = peak_ticks / tick_rate
+    res = evaluate(drive, grid.supply, grid.ambient, grid.r_factor, grid.l_factor, duty, f_hold,
+                   peak_time)
+    corners = _corners(grid, res)
+    nom_grid = nominal_point(drive)
+    nom = evaluate(drive, nom_grid.supply, nom_grid.ambient, nom_grid.r_factor, nom_grid.l_factor,
+                   duty, f_hold, peak_time)
+    nominal = _corners(nom_grid, nom)[0]
+    nominal = Corner(**{**asdict(nominal), "label": "nominal: " + nominal.label})
+
+    # Hold figures
+    k_min = _worst(res.hold.mean, largest=False)
+    k_max = _worst(res.hold.mean)
+    k_hot = _worst(res.coil_temp)
+    up = min(compare + 1, timer.period_ticks)
+    step = pwm_steady_state(up / timer.period_ticks, f_hold, res.loop.v_on, res.loop.r_on,
+                            res.loop.r_off, res.loop.v_off, res.loop.inductance).mean - res.hold.mean
+    hold = HoldResult(
+        mode=drive.hold.mode, current_a=drive.hold.current, frequency_hz=f_hold, duty=duty,
+        compare_ticks=compare,
+        min_mean_current_a=float(res.hold.mean[k_min]), min_corner=grid.label(k_min),
+        max_mean_current_a=float(res.hold.mean[k_max]), max_corner=grid.label(k_max),
+        ripple_a=float(np.max(res.hold.ripple)), current_step_a=float(np.max(step)),
+        coil_power_w=float(np.max(res.coil_power)), coil_temp_c=float(res.coil_temp[k_hot]),
+        hottest_corner=grid.label(k_hot), discontinuous_corners=int(np.sum(res.hold.dcm)),
+    )
+
+    # Release
+    k_rel = _worst(res.release_time)
+    rating = drive.switch.max_voltage
+    limit = rating * drive.switch.derating
+    lockout = math.ceil(float(np.max(res.release_zero_time)) * tick_rate - 1e-9) + 1
+    release = ReleaseResult(
+        freewheel=drive.freewheel.type, dropout_current_a=drive.release.current,
+        time_s=float(res.release_time[k_rel]), zero_time_s=float(np.max(res.release_zero_time)),
+        worst_corner=grid.label(k_rel), lockout_ticks=lockout,
+        peak_switch_voltage_v=float(np.max(res.peak_switch_voltage)), switch_limit_v=limit,
+        switch_rating_v=rating, energy_j=float(np.max(res.release_energy)),
+    )
+    peak_end_max = float(np.max(res.peak_end_current))
+    pull_in = PullInResult(current_a=drive.pull_in.current, time_s=t_pull,
+                           worst_corner=grid.label(k_pull), margin=drive.pull_in.margin,
+                           peak_time_s=peak_time, peak_ticks=peak_ticks,
+                           peak_end_current_max_a=peak_end_max)
+    timer_result = TimerResult(clock_hz=board.timer.clock, bits=board.timer.bits,
+                               prescaler=timer.prescaler, period_ticks=timer.period_ticks,
+                               compare_ticks=compare, frequency_hz=f_hold,
+                               target_hz=drive.hold.frequency, frequency_error=timer.error)
+
+    # ADC thresholds
+    adc = board.adc
+    vpa = board.sense.resistance * board.sense.gain
+    full_scale = adc.reference / vpa
+    over_a = OVER_CURRENT_FACTOR * max(peak_end_max, float(np.max(res.hold.i_max)))
+    open_a = OPEN_LOAD_FACTOR * hold.min_mean_current_a
+    thresholds = AdcThresholds(
+        volts_per_amp=vpa, full_scale_current_a=full_scale,
+        pull_in_code=_adc_code(drive.pull_in.current * vpa, adc.reference, adc.bits),
+        hold_code=_adc_code(drive.hold.current * vpa, adc.reference, adc.bits),
+        over_current_code=_adc_code(over_a * vpa, adc.reference, adc.bits), over_current_a=over_a,
+        open_load_code=_adc_code(open_a * vpa, adc.reference, adc.bits), open_load_a=open_a,
+        supply_min_code=_adc_code(drive.supply.min / board.supply_sense.divider, adc.reference, adc.bits),
+        supply_max_code=_adc_code(drive.supply.max / board.supply_sense.divider, adc.reference, adc.bits),
+    )
+    table = _duty_table(drive, grid, res.coil_temp, timer)
+
+    checks = _checks(drive, grid, res, pull_in, hold, release, timer_result, thresholds, timer)
+    cautions = _cautions(drive, hold, release)
+    mc = None
+    if samples > 0:
+        from .montecarlo import monte_carlo
+        mc = monte_carlo(drive, duty, f_hold, peak_time, samples, seed)
+    return Design(drive=drive, pull_in=pull_in, hold=hold, release=release, timer=timer_result,
+                  adc=thresholds, duty_table=table, corners=corners, nominal=nominal,
+                  checks=checks, cautions=cautions, monte_carlo=mc,
+                  input_hash=drive.input_hash(), worst_corner_index=k_pull)
+
+
+def _checks(drive: Drive, grid: CornerGrid, res: PointResults, pull_in: PullInResult,
+            hold: HoldResult, release: ReleaseResult, timer: TimerResult, adc: AdcThresholds,
+            setting: TimerSetting) -> list[Check]:
+    checks: list[Check] = []
+    add = checks.append
+    i_inf = res.loop.v_on / res.loop.r_on
+    k = _worst(i_inf, largest=False)
+    add(Check("pull_in_reachable", bool(np.all(i_inf > drive.pull_in.current)),
+              f"lowest steady current at full supply {i_inf[k]:.4g} A ({grid.label(k)}) vs "
+              f"pull-in {drive.pull_in.current:.4g} A"
+              + ("" if np.all(i_inf > drive.pull_in.current) else
+                 " — lower the coil resistance, raise the minimum supply or lower the pull-in current")))
+    met = hold.min_mean_current_a >= drive.hold.current and hold.duty < 1.0
+    add(Check("hold_current_met", bool(met and np.all(np.isfinite(res.hold.mean))),
+              f"lowest hold mean {hold.min_mean_current_a:.4g} A ({hold.min_corner}) vs "
+              f"{drive.hold.current:.4g} A at duty {hold.duty:.4f}"
+              + ("" if met else " — even full duty cannot hold: raise the supply or lower the hold current")))
+    add(Check("hold_below_pull_in", drive.hold.current < drive.pull_in.current,
+              f"hold {drive.hold.current:.4g} A vs pull-in {drive.pull_in.current:.4g} A"))
+    add(Check("hold_max_current", hold.max_mean_current_a < drive.pull_in.current,
+              f"highest hold mean {hold.max_mean_current_a:.4g} A ({hold.max_corner}) vs pull-in "
+              f"{drive.pull_in.current:.4g} A"
+              + ("" if hold.max_mean_current_a < drive.pull_in.current else
+                 " — use the supply-compensated duty table to save power at high supply"),
+              severity="warning"))
+    hot_ok = bool(np.all(np.isfinite(res.coil_temp))) and hold.coil_temp_c <= drive.thermal.max_coil_temp
+    add(Check("coil_temperature", hot_ok,
+              (f"hottest coil {hold.coil_temp_c:.1f} degC ({hold.hottest_corner}) vs limit "
+               f"{drive.thermal.max_coil_temp:.1f} degC" if np.all(np.isfinite(res.coil_temp)) else
+               "the coil temperature does not settle below 1000 degC (thermal runaway)")
+              + ("" if hot_ok else " — lower the hold current or improve the coil's cooling")))
+    v_ok = release.peak_switch_voltage_v <= release.switch_limit_v
+    add(Check("switch_voltage", v_ok,
+              f"peak switch voltage {release.peak_switch_voltage_v:.4g} V vs {release.switch_limit_v:.4g} V "
+              f"({drive.switch.derating:.0%} of the {release.switch_rating_v:.4g} V rating, derating: common practice)"
+              + ("" if v_ok else " — use a lower Zener/clamp voltage or a switch with a higher rating")))
+    f_ok = abs(timer.frequency_error) <= drive.hold.frequency_tolerance
+    add(Check("timer_frequency", f_ok,
+              f"{timer.frequency_hz:.6g} Hz for {timer.target_hz:.6g} Hz (error {timer.frequency_error:+.3%}, "
+              f"allowed {drive.hold.frequency_tolerance:.2%}); prescaler {timer.prescaler}, "
+              f"period {timer.period_ticks} counts"
+              + ("" if f_ok else " — the timer cannot make this frequency: change hold.frequency")))
+    d_ok = 0 < timer.compare_ticks < timer.period_ticks
+    add(Check("duty_range", d_ok,
+              f"compare {timer.compare_ticks} of {timer.period_ticks} counts"))
+    add(Check("duty_resolution", timer.period_ticks >= MIN_DUTY_STEPS,
+              f"{timer.period_ticks} steps per period, one step = {hold.current_step_a * 1e3:.3g} mA of hold "
+              f"current (fewer than {MIN_DUTY_STEPS} steps is coarse: common practice)",
+              severity="warning"))
+    add(Check("audible_frequency", timer.frequency_hz >= AUDIBLE_LIMIT_HZ,
+              f"{timer.frequency_hz:.6g} Hz" + ("" if timer.frequency_hz >= AUDIBLE_LIMIT_HZ else
+                                               " is below 20 kHz: the coil may whine (common practice)"),
+              severity="warning"))
+    peak_ok = pull_in.peak_ticks > 0 and pull_in.peak_ticks <= UINT32_MAX
+    add(Check("peak_ticks", peak_ok,
+              f"{pull_in.peak_ticks} ticks at {drive.board.tick.rate:.6g} Hz = {pull_in.peak_time_s * 1e3:.4g} ms"))
+    max_code = 2**drive.board.adc.bits - 1
+    pull_code_ok = drive.pull_in.current < adc.full_scale_current_a
+    add(Check("adc_range", pull_code_ok,
+              f"current-sense full scale {adc.full_scale_current_a:.4g} A vs pull-in "
+              f"{drive.pull_in.current:.4g} A" + ("" if pull_code_ok else
+                                                  " — lower the sense resistance or amplifier gain")))
+    add(Check("adc_over_current", adc.over_current_a < adc.full_scale_current_a,
+              f"over-current threshold {adc.over_current_a:.4g} A (code {adc.over_current_code} of "
+              f"{max_code}) vs full scale {adc.full_scale_current_a:.4g} A",
+              severity="warning"))
+    sup_pin = drive.supply.max / drive.board.supply_sense.divider
+    add(Check("supply_sense_range", sup_pin < drive.board.adc.reference,
+              f"{sup_pin:.4g} V at the supply-sense pin at {drive.supply.max:.4g} V vs ADC reference "
+              f"{drive.board.adc.reference:.4g} V"))
+    add(Check("adc_hold_resolution", adc.hold_code >= MIN_HOLD_CODES,
+              f"hold current reads {adc.hold_code} codes (fewer than {MIN_HOLD_CODES} is coarse: common practice)",
+              severity="warning"))
+    return checks
+
+
+def _cautions(drive: Drive, hold: HoldResult, release: ReleaseResult) -> list[str]:
+    out = [
+        f"Turning the coil off makes the switch see up to {release.peak_switch_voltage_v:.3g} V: keep the "
+        f"freewheel path ({release.freewheel}) fitted and rated; never open the coil circuit while current flows.",
+        f"Each release dumps up to {release.energy_j * 1e3:.3g} mJ into the freewheel element; check its "
+        "energy and average-power rating at the highest actuation rate.",
+        f"The coil settles at up to {hold.coil_temp_c:.0f} degC during a long hold; hot coils burn and "
+        "insulation ages fast above its class rating.",
+        "These figures are a design aid, not a safety approval: for mains-connected or safety-relevant "
+        "equipment follow local codes and licensed practice.",
+    ]
+    return out

@@ -1,0 +1,103 @@
+"""The driver circuit around the coil: loop resistances and voltages at operating points.
+
+Topology (low-side switch)::
+
+    V_bus ──┬───────────────┐
+            │            freewheel path (diode, diode+Zener, diode+resistor)
+          coil (R_coil(T), L)│
+            │  [R_sense if position = "coil"]
+            ├───────────────┘
+          drain ── switch (R_on) ── [R_sense if position = "switch"] ── ground
+            └── clamp (TVS, drain to ground) if freewheel type = "clamp"
+
+Switch on: ``V_bus = (R_coil + R_switch + R_sense) i + L di/dt``.
+Switch off: ``L di/dt = -(R_off i + V_off)`` where, by freewheel type,
+
+============  =======================================  ==============================
+type          ``R_off`` (beyond ``R_coil``)             ``V_off``
+============  =======================================  ==============================
+diode         ``R_sense`` if in the coil path           ``V_diode``
+zener         ``R_sense`` if in the coil path           ``V_diode + V_zener``
+resistor      ``R_sense`` if in the coil path + ``R_fw``  ``V_diode``
+clamp         ``R_sense`` if in the coil path           ``V_clamp - V_bus``
+============  =======================================  ==============================
+
+The switch sees ``V_bus + V_diode + V_zener + R_fw i`` while freewheeling through a path
+across the coil, and ``V_clamp`` with a clamp across it.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..config import Drive
+
+#: Temperature coefficient of resistance of annealed copper at 20 degC, 1/K (IEC 60028).
+COPPER_ALPHA = 0.00393
+
+
+def copper_resistance(r_ref, t_ref, temp, alpha: float = COPPER_ALPHA):
+    """``R(T) = R_ref (1 + alpha (T - T_ref))`` in ohm; temperatures in degC."""
+    return np.asarray(r_ref, float) * (1.0 + alpha * (np.asarray(temp, float) - t_ref))
+
+
+@dataclass(frozen=True)
+class Loop:
+    """Loop parameters at a set of operating points (arrays broadcast together).
+
+    Units: V, ohm, H. ``r_coil`` is the copper alone (it is what heats the coil).
+    """
+
+    v_on: np.ndarray
+    r_on: np.ndarray
+    r_off: np.ndarray
+    v_off: np.ndarray
+    inductance: np.ndarray
+    r_coil: np.ndarray
+    supply: np.ndarray
+
+    def switch_voltage(self, drive: Drive, current):
+        """Switch (drain) voltage in V right after turning off ``current`` A."""
+        fw = drive.freewheel
+        if fw.type == "clamp":
+            return np.broadcast_to(np.asarray(fw.clamp_voltage, float), np.shape(current)) + 0.0
+        return self.supply + fw.diode_drop + fw.zener_voltage + fw.resistance * np.asarray(current)
+
+
+def loop(drive: Drive, supply, coil_temp, r_factor=1.0, l_factor=1.0) -> Loop:
+    """Loop parameters for supply V, coil temperature degC and tolerance factors.
+
+    ``r_factor``/``l_factor`` multiply the nominal coil resistance/inductance
+    (1.07 = +7 % tolerance corner).
+    """
+    coil = drive.coil
+    sense = drive.board.sense
+    fw = drive.freewheel
+    supply = np.asarray(supply, float)
+    r_coil = copper_resistance(coil.resistance, coil.reference_temp, coil_temp) * r_factor
+    r_on = r_coil + drive.switch.on_resistance + sense.resistance
+    r_off = r_coil + (sense.resistance if sense.position == "coil" else 0.0) + fw.resistance
+    if fw.type == "clamp":
+        v_off = fw.clamp_voltage - supply
+    else:
+        v_off = np.full_like(supply, fw.diode_drop + fw.zener_voltage)
+    inductance = coil.inductance * np.asarray(l_factor, float)
+    arrays = np.broadcast_arrays(supply, r_on, r_off, v_off, inductance, r_coil)
+    supply, r_on, r_off, v_off, inductance, r_coil = (np.array(a, float) for a in arrays)
+    return Loop(v_on=supply, r_on=r_on, r_off=r_off, v_off=v_off, inductance=inductance,
+                r_coil=r_coil, supply=supply)
+
+
+def freewheel_element_energy(drive: Drive, lp: Loop, charge, square):
+    """Energy in J taken by the freewheel element(s) over a freewheel segment.
+
+    ``charge`` and ``square`` are ``int i dt`` and ``int i^2 dt`` over the segment.
+    Diode, Zener and resistor for paths across the coil; the clamp's ``V_clamp * Q``
+    (part of which the supply delivers during the decay) for a clamp across the switch.
+    """
+    fw = drive.freewheel
+    if fw.type == "clamp":
+        return fw.clamp_voltage * np.asarray(charge)
+    return (fw.diode_drop + fw.zener_voltage) * np.asarray(charge) + fw.resistance * np.asarray(square)

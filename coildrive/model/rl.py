@@ -1,0 +1,80 @@
+"""Closed-form first-order RL segments.
+
+Every segment of a switched coil has the form ``i(t) = a + b * exp(-t / tau)``:
+
+* switch on (rise):  ``L di/dt = V - R i``        -> ``a = V/R``,  ``b = i0 - V/R``, ``tau = L/R``
+* freewheel (decay): ``L di/dt = -(R i + V_off)`` -> ``a = -V_off/R``, ``b = i0 + V_off/R``;
+  the freewheel diode blocks reverse current, so a decay ends when ``i`` reaches zero.
+
+All functions broadcast over numpy arrays; units are A, V, ohm, H, s.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+ArrayLike = "float | np.ndarray"
+
+
+def rise_current(t, i0, v, r, l):
+    """Current in A after ``t`` s of switch-on from ``i0`` A: ``V/R + (i0 - V/R) e^(-t/tau)``."""
+    a = np.asarray(v, float) / r
+    return a + (i0 - a) * np.exp(-np.asarray(t, float) * r / l)
+
+
+def rise_time(i1, i0, v, r, l):
+    """Time in s for a rise from ``i0`` to ``i1`` A; ``inf`` where ``i1 >= V/R`` (unreachable)."""
+    a = np.asarray(v, float) / np.asarray(r, float)
+    i1 = np.asarray(i1, float)
+    i0 = np.asarray(i0, float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t = (np.asarray(l, float) / r) * np.log((a - i0) / (a - i1))
+    t = np.where(i1 <= i0, 0.0, t)
+    return np.where((i1 > i0) & (i1 >= a), np.inf, t)
+
+
+def decay_current(t, i0, r, v_off, l):
+    """Current in A after ``t`` s of freewheeling from ``i0`` A, held at zero once it gets there."""
+    b = np.asarray(v_off, float) / r
+    i = (i0 + b) * np.exp(-np.asarray(t, float) * r / l) - b
+    return np.maximum(i, 0.0)
+
+
+def decay_time(i1, i0, r, v_off, l):
+    """Time in s for a freewheel decay from ``i0`` down to ``i1`` A (``0 <= i1 <= i0``).
+
+    ``V_off`` must be positive when ``i1`` is zero (a diode drop always is).
+    """
+    b = np.asarray(v_off, float) / np.asarray(r, float)
+    i0 = np.asarray(i0, float)
+    i1 = np.minimum(np.asarray(i1, float), i0)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t = (np.asarray(l, float) / r) * np.log((i0 + b) / (i1 + b))
+    return np.where(i1 >= i0, 0.0, t)
+
+
+def segment_integrals(a, b, tau, t):
+    """Integrals over ``0..t`` of ``i = a + b e^(-s/tau)``.
+
+    Returns
+    -------
+    charge : ``int i ds`` in A*s (coulomb)
+    square : ``int i^2 ds`` in A^2*s (times a resistance gives joule)
+    """
+    e1 = -np.expm1(-np.asarray(t, float) / tau)  # 1 - e^(-t/tau), accurate for small t
+    e2 = -np.expm1(-2.0 * np.asarray(t, float) / tau)
+    charge = a * t + b * tau * e1
+    square = a * a * t + 2.0 * a * b * tau * e1 + b * b * tau * 0.5 * e2
+    return charge, square
+
+
+def rise_integrals(t, i0, v, r, l):
+    """``(int i dt, int i^2 dt)`` over a switch-on segment of length ``t``."""
+    a = np.asarray(v, float) / r
+    return segment_integrals(a, i0 - a, np.asarray(l, float) / r, t)
+
+
+def decay_integrals(t, i0, r, v_off, l):
+    """``(int i dt, int i^2 dt)`` over a freewheel segment of length ``t`` (must end at i >= 0)."""
+    b = np.asarray(v_off, float) / r
+    return segment_integrals(-b, i0 + b, np.asarray(l, float) / r, t)
