@@ -1,0 +1,45 @@
+"""Shared test helpers.
+
+Tools from outside the project (ngspice, gcc, g++) may be missing on a developer's
+machine: the tests that need them then skip with the reason. Under CI (``CI=true``) they
+must run, so a missing tool is a failure there, not a skip.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).resolve().parent.parent
+EXAMPLES = ROOT / "examples"
+BOARDS = ROOT / "boards"
+IN_CI = os.environ.get("CI", "").lower() in ("1", "true", "yes")
+
+
+def require_tool(name: str) -> str:
+    """Path of an external tool; skip (locally) or fail (under CI=true) when it is missing."""
+    path = shutil.which(name)
+    if path is None:
+        message = f"{name} is not installed (apt-get install {'ngspice' if name == 'ngspice' else 'build-essential'})"
+        if IN_CI:
+            pytest.fail(f"CI=true but {message}")
+        pytest.skip(message)
+    return path
+
+
+def run_cli(*args: str, cwd: Path | None = None, input: str | None = None,
+            timeout: float = 120) -> subprocess.CompletedProcess:
+    """Run ``coildrive ARGS`` as a real subprocess with this interpreter."""
+    return subprocess.run([sys.executable, "-m", "coildrive", *args], cwd=cwd or ROOT,
+                          capture_output=True, text=True, input=input, timeout=timeout,
+                          env={**os.environ, "PYTHONPATH": str(ROOT)})
+
+
+@pytest.fixture
+def demo_drive() -> Path:
+    return EXAMPLES / "demo-valve.toml"
