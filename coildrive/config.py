@@ -438,8 +438,8 @@ def load_board(path: str | Path) -> Board:
     s = sec("timer")
     timer = Timer(s.quantity("clock", "frequency", positive=True),
                   s.integer("bits", low=8, high=32),
-                  s.integer("prescaler_max", 1, low=1, high=2**32),
-                  s.integer_list("prescalers", (), low=1, high=2**32))
+                  s.integer("prescaler_max", 1, low=1, high=2**32 - 1),
+                  s.integer_list("prescalers", (), low=1, high=2**32 - 1))
     if timer.prescalers and max(timer.prescalers) > timer.prescaler_max:
         raise s.fail("prescalers", f"{max(timer.prescalers)} is above timer.prescaler_max "
                      f"({timer.prescaler_max})")

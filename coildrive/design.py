@@ -25,6 +25,7 @@ from .config import Drive
 from .corners import CornerGrid, corner_grid, nominal_point
 from .evaluate import PointResults, evaluate, required_duty
 from .model.circuit import loop
+from .model.waveform import actuation
 from .model.pwm import duty_for_mean, pwm_steady_state
 from .timer import TimerSetting, solve_timer
 
@@ -185,6 +186,7 @@ class Design:
     checks: list[Check]
     cautions: list[str]
     monte_carlo: dict | None = None
+    waveforms: dict = field(default_factory=dict, repr=False)
     version: str = __version__
     input_hash: str = ""
     worst_corner_index: int = 0
@@ -397,14 +399,29 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
 
     checks = _checks(drive, grid, res, pull_in, hold, release, timer_result, thresholds, timer)
     cautions = _cautions(drive, hold, release)
+    waveforms = {
+        "nominal": _waveform(drive, nom, 0, peak_time, duty, f_hold, "nominal"),
+        "worst": _waveform(drive, res, k_pull, peak_time, duty, f_hold,
+                           "worst pull-in: " + grid.label(k_pull)),
+    }
     mc = None
     if samples > 0:
         from .montecarlo import monte_carlo
         mc = monte_carlo(drive, duty, f_hold, peak_time, samples, seed)
     return Design(drive=drive, pull_in=pull_in, hold=hold, release=release, timer=timer_result,
                   adc=thresholds, duty_table=table, corners=corners, nominal=nominal,
-                  checks=checks, cautions=cautions, monte_carlo=mc,
+                  checks=checks, cautions=cautions, monte_carlo=mc, waveforms=waveforms,
                   input_hash=drive.input_hash(), worst_corner_index=k_pull)
+
+
+def _waveform(drive: Drive, res: PointResults, k: int, peak_time: float, duty: float,
+              frequency: float, label: str):
+    """An actuation at point ``k`` of ``res`` for the plot: the hold shown for twice the
+    peak time (at least 20 PWM periods)."""
+    temp = float(res.coil_temp[k]) if math.isfinite(res.coil_temp[k]) else drive.thermal.max_coil_temp
+    hold_time = max(2.0 * peak_time, 20.0 / frequency)
+    return actuation(drive, float(res.supply[k]), temp, peak_time, duty, frequency, hold_time,
+                     float(res.r_factor[k]), float(res.l_factor[k]), label=label)
 
 
 def _checks(drive: Drive, grid: CornerGrid, res: PointResults, pull_in: PullInResult,

@@ -1,0 +1,141 @@
+"""Commands of the design job: design, demo, simulate, boards."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Optional
+
+import typer
+
+from ..config import load_board, load_drive
+from ..errors import InputError
+from ..fileio import write_atomic
+from ..resources import bundled_boards, example
+from ..units import parse_quantity
+from .common import status, user_errors
+
+DEMO = "demo-valve"
+
+
+def _run_design(drive_path: Path, board: Optional[str], as_json: bool, header: Optional[Path],
+                plot: Optional[Path], prefix: str, samples: int, seed: int) -> None:
+    from ..design import design
+
+    if samples < 0:
+        raise InputError("--samples", "", f"{samples} is negative, expected a count >= 0")
+    drive = load_drive(drive_path, board)
+    if header is not None:
+        from ..codegen.header import check_prefix
+        check_prefix(prefix)
+    result = design(drive, samples=samples, seed=seed)
+    if as_json:
+        typer.echo(json.dumps(result.to_dict(), indent=2))
+    else:
+        from ..report import print_design
+        print_design(result)
+    if plot is not None:
+        from ..plot import plot_design
+        write_atomic(plot, plot_design(result))
+        status(f"wrote plot {plot}")
+    if not result.ok:
+        if header is not None:
+            status(f"header {header} not written: the design fails "
+                   + ", ".join(c.name for c in result.failed))
+        raise typer.Exit(1)
+    if header is not None:
+        from ..codegen.header import generate_header
+        write_atomic(header, generate_header(result, prefix))
+        status(f"wrote header {header}")
+
+
+@user_errors
+def design_command(
+    drive: Path = typer.Argument(..., help="Drive file (TOML)."),
+    board: Optional[str] = typer.Option(None, "--board", "-b", help="Bundled board name or board file; overrides the drive file's board."),
+    as_json: bool = typer.Option(False, "--json", help="Print the design as one JSON document on stdout."),
+    header: Optional[Path] = typer.Option(None, "--header", help="Write the C header here (only when every check passes)."),
+    plot: Optional[Path] = typer.Option(None, "--plot", help="Write a PNG of the nominal and worst-corner actuation."),
+    prefix: str = typer.Option("COIL", "--prefix", help="Name prefix of the header's macros."),
+    samples: int = typer.Option(0, "--samples", help="Add a tolerance Monte Carlo of N samples."),
+    seed: int = typer.Option(1, "--seed", help="Random seed of the Monte Carlo."),
+) -> None:
+    """Design the peak-and-hold drive for DRIVE; exit 1 if a check fails."""
+    _run_design(drive, board, as_json, header, plot, prefix, samples, seed)
+
+
+@user_errors
+def demo_command(
+    header: Path = typer.Option(Path("demo_valve.h"), "--header", help="Where to write the demo's C header."),
+    as_json: bool = typer.Option(False, "--json", help="Print the design as JSON instead of tables."),
+) -> None:
+    """Design the bundled demo (a 24 V valve on a lab analyser) and write its C header."""
+    path = example(DEMO)
+    if not as_json:
+        status(f"demo: {path}")
+    _run_design(path, None, as_json, header, None, "VALVE", 0, 1)
+
+
+@user_errors
+def simulate_command(
+    drive: Path = typer.Argument(..., help="Drive file (TOML)."),
+    supply: str = typer.Option(..., "--supply", help='Bus voltage, e.g. 20 or "20 V".'),
+    coil_temp: str = typer.Option(..., "--coil-temp", help='Coil temperature, e.g. 85 or "85 degC".'),
+    csv: Path = typer.Option(..., "--csv", help="Write the waveform here (CSV)."),
+    board: Optional[str] = typer.Option(None, "--board", "-b", help="Bundled board name or board file."),
+    hold_time: str = typer.Option("20 ms", "--hold-time", help='Length of the hold, e.g. 0.05 or "50 ms".'),
+    r_factor: float = typer.Option(1.0, "--r-factor", help="Coil resistance factor (1.07 = +7 %)."),
+    l_factor: float = typer.Option(1.0, "--l-factor", help="Coil inductance factor."),
+    points: int = typer.Option(8, "--points", help="Samples per PWM segment (the peak and the decay get 40x)."),
+) -> None:
+    """Simulate one actuation with the design's peak and hold: on, peak, hold, off, decay."""
+    from ..design import design
+    from ..model.waveform import actuation
+
+    v = parse_quantity(supply, "voltage", "--supply")
+    t = parse_quantity(coil_temp, "temperature", "--coil-temp")
+    h = parse_quantity(hold_time, "time", "--hold-time")
+    if not v > 0:
+        raise InputError("--supply", "", f"{supply!r} must be greater than zero")
+    if not h > 0:
+        raise InputError("--hold-time", "", f"{hold_time!r} must be greater than zero")
+    for name, f in (("--r-factor", r_factor), ("--l-factor", l_factor)):
+        if not f > 0:
+            raise InputError(name, "", f"{f:g} must be greater than zero")
+    if points < 2:
+        raise InputError("--points", "", f"{points} is below 2, expected at least 2 samples per segment")
+    d = design(load_drive(drive, board))
+    if d.pull_in.peak_ticks == 0:
+        raise InputError(str(drive), "pull_in.current", "is never reached at the worst corner, "
+                         "so the design has no peak time to simulate")
+    w = actuation(d.drive, v, t, d.pull_in.peak_time_s, d.hold.duty, d.hold.frequency_hz, h,
+                  r_factor, l_factor, points)
+    write_atomic(csv, w.to_csv())
+    status(f"wrote {csv}: {len(w.time)} samples, peak {d.pull_in.peak_time_s * 1e3:.4g} ms, "
+           f"hold duty {d.hold.duty:.4f} at {d.hold.frequency_hz:.6g} Hz, off at "
+           f"{w.events['off'] * 1e3:.4g} ms, zero at {w.events['zero'] * 1e3:.4g} ms")
+
+
+@user_errors
+def boards_command(
+    as_json: bool = typer.Option(False, "--json", help="Print the boards as JSON."),
+) -> None:
+    """List the bundled board profiles."""
+    boards = [load_board(p) for p in bundled_boards().values()]
+    if as_json:
+        typer.echo(json.dumps([{"name": b.name, "description": b.description, "timer_clock_hz": b.timer.clock,
+                                "timer_bits": b.timer.bits, "adc_bits": b.adc.bits,
+                                "sense_position": b.sense.position, "freewheel": b.freewheel.type,
+                                "switch_max_voltage_v": b.switch.max_voltage, "baud": b.link.baud}
+                               for b in boards], indent=2))
+        return
+    from rich.console import Console
+    from rich.table import Table
+
+    table = Table(title="bundled boards")
+    for col in ("name", "timer", "ADC", "sense", "freewheel", "switch", "description"):
+        table.add_column(col)
+    for b in boards:
+        table.add_row(b.name, f"{b.timer.clock / 1e6:g} MHz, {b.timer.bits}-bit", f"{b.adc.bits}-bit",
+                      b.sense.position, b.freewheel.type, f"{b.switch.max_voltage:g} V", b.description)
+    Console().print(table)

@@ -1,0 +1,115 @@
+"""The firmware header: a Design rendered as C constants through a Jinja2 template.
+
+:class:`HeaderView` wraps a :class:`~coildrive.design.Design` and adds only C concerns
+(names, integer types, literal suffixes); the template is
+``codegen_templates/drive_header.h.j2``. :func:`generate_header` is pure: Design in,
+text out.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass
+
+from ..design import Design
+from ..errors import InputError
+from ..resources import data_dir
+
+_IDENT = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
+
+
+@dataclass(frozen=True)
+class Constant:
+    """One ``#define``: C name, integer value, what it is."""
+
+    name: str
+    value: int
+    comment: str
+
+    @property
+    def literal(self) -> str:
+        """Integer literal with a suffix: ``U`` when it fits 16 bits, else ``UL``."""
+        if self.value < 0:
+            raise ValueError(f"{self.name} is negative")
+        return f"{self.value}U" if self.value <= 0xFFFF else f"{self.value}UL"
+
+
+def c_uint_type(max_value: int) -> str:
+    """Smallest of uint8_t/uint16_t/uint32_t that holds ``max_value``."""
+    if max_value <= 0xFF:
+        return "uint8_t"
+    if max_value <= 0xFFFF:
+        return "uint16_t"
+    return "uint32_t"
+
+
+def check_prefix(prefix: str) -> str:
+    """A C identifier prefix, or :class:`InputError` naming ``--prefix``."""
+    if not _IDENT.match(prefix):
+        raise InputError("--prefix", "", f"{prefix!r} is not a C identifier, expected e.g. VALVE1")
+    return prefix
+
+
+class HeaderView:
+    """C-facing view of a design: macro prefix, constants, table types and entries."""
+
+    def __init__(self, design: Design, prefix: str = "COIL"):
+        self.design = design
+        self.macro = check_prefix(prefix).upper()
+        self.lower = prefix.lower()
+        d = design
+        t = d.timer
+        a = d.adc
+        board = d.drive.board
+        self.guard = f"{self.macro}_DRIVE_H"
+        self.compare_type = c_uint_type(t.period_ticks)
+        self.adc_type = c_uint_type(2**board.adc.bits - 1)
+        m = self.macro
+        self.constants = [
+            Constant(f"{m}_TIMER_CLOCK_HZ", round(t.clock_hz), "timer input clock"),
+            Constant(f"{m}_TIMER_PRESCALER", t.prescaler, "clock divide ratio"),
+            Constant(f"{m}_TIMER_PRESCALER_REG", t.prescaler - 1, "divide ratio - 1, for timers that take it so"),
+            Constant(f"{m}_TIMER_PRESCALER_MAX", board.timer.prescaler_max, "largest divide ratio of this timer"),
+            Constant(f"{m}_TIMER_COUNTER_MAX", 2**board.timer.bits - 1, f"{board.timer.bits}-bit counter"),
+            Constant(f"{m}_TIMER_PERIOD_TICKS", t.period_ticks, "timer counts per PWM period"),
+            Constant(f"{m}_TIMER_RELOAD", t.period_ticks - 1, "period - 1, for auto-reload registers"),
+            Constant(f"{m}_HOLD_COMPARE_TICKS", t.compare_ticks,
+                     f"on-time counts of the hold (duty {d.hold.duty:.4f})"),
+            Constant(f"{m}_HOLD_FREQUENCY_HZ", round(t.frequency_hz),
+                     f"hold PWM frequency as the timer makes it ({t.frequency_hz:.6g} Hz)"),
+            Constant(f"{m}_TICK_RATE_HZ", round(board.tick.rate), "scheduler tick rate"),
+            Constant(f"{m}_PEAK_TICKS", d.pull_in.peak_ticks,
+                     f"peak phase: {d.pull_in.peak_time_s * 1e3:.4g} ms (worst pull-in "
+                     f"{d.pull_in.time_s * 1e3:.4g} ms x {d.pull_in.margin:g}, +1 tick)"),
+            Constant(f"{m}_RELEASE_LOCKOUT_TICKS", d.release.lockout_ticks,
+                     f"wait after turn-off before re-actuating: current is zero after "
+                     f"{d.release.zero_time_s * 1e3:.4g} ms"),
+            Constant(f"{m}_ADC_BITS", board.adc.bits, "ADC resolution"),
+            Constant(f"{m}_ADC_MAX_CODE", 2**board.adc.bits - 1, "ADC full-scale code"),
+            Constant(f"{m}_ADC_PULL_IN_CODE", a.pull_in_code, f"pull-in current {d.pull_in.current_a:.4g} A"),
+            Constant(f"{m}_ADC_HOLD_CODE", a.hold_code, f"hold current {d.hold.current_a:.4g} A"),
+            Constant(f"{m}_ADC_OVER_CURRENT_CODE", a.over_current_code,
+                     f"over-current {a.over_current_a:.4g} A: turn off"),
+            Constant(f"{m}_ADC_OPEN_LOAD_CODE", a.open_load_code,
+                     f"open load below {a.open_load_a:.4g} A (with the switch on)"),
+            Constant(f"{m}_SUPPLY_MIN_CODE", a.supply_min_code, f"supply sense at {d.drive.supply.min:.4g} V"),
+            Constant(f"{m}_SUPPLY_MAX_CODE", a.supply_max_code, f"supply sense at {d.drive.supply.max:.4g} V"),
+            Constant(f"{m}_DUTY_TABLE_LEN", len(d.duty_table.adc_codes), "entries in the duty table"),
+        ]
+        self.table = list(zip(d.duty_table.adc_codes, d.duty_table.compare_ticks, d.duty_table.supply_v))
+
+    def value(self, suffix: str) -> int:
+        return next(c.value for c in self.constants if c.name == f"{self.macro}_{suffix}")
+
+
+def generate_header(design: Design, prefix: str = "COIL") -> str:
+    """Render the C header for ``design``; ``prefix`` names the macros (``PREFIX_...``)."""
+    import jinja2  # only the header path pays for it
+
+    env = jinja2.Environment(
+        loader=jinja2.FileSystemLoader(str(data_dir("codegen_templates"))),
+        undefined=jinja2.StrictUndefined, keep_trailing_newline=True,
+        trim_blocks=True, lstrip_blocks=True,
+    )
+    view = HeaderView(design, prefix)
+    return env.get_template("drive_header.h.j2").render(v=view, d=design)

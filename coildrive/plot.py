@@ -1,0 +1,42 @@
+"""Plot of a Design's actuation waveforms (matplotlib, Agg). Imported only for --plot."""
+
+from __future__ import annotations
+
+import io
+
+from .design import Design
+
+
+def plot_design(d: Design) -> bytes:
+    """PNG bytes: coil current at the nominal and the worst pull-in corner, phases marked."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(9, 5), dpi=110)
+    ax = fig.add_subplot(1, 1, 1)
+    colours = {"nominal": "tab:blue", "worst": "tab:red"}
+    for key, w in d.waveforms.items():
+        ax.plot(w.time * 1e3, w.current, lw=0.9, color=colours.get(key), label=w.label)
+    w = d.waveforms["worst"]
+    ev = w.events
+    ax.axvspan(0, ev["hold"] * 1e3, color="tab:orange", alpha=0.12, label="peak")
+    ax.axvspan(ev["hold"] * 1e3, ev["off"] * 1e3, color="tab:green", alpha=0.08, label="hold (PWM)")
+    ax.axvspan(ev["off"] * 1e3, ev["zero"] * 1e3, color="tab:gray", alpha=0.15, label="release")
+    ax.axhline(d.pull_in.current_a, color="k", ls="--", lw=0.8)
+    ax.text(0, d.pull_in.current_a, " pull-in", va="bottom", fontsize=8)
+    ax.axhline(d.hold.current_a, color="k", ls=":", lw=0.8)
+    ax.text(0, d.hold.current_a, " hold", va="bottom", fontsize=8)
+    ax.axhline(d.release.dropout_current_a, color="k", ls="-.", lw=0.8)
+    ax.text(0, d.release.dropout_current_a, " drop-out", va="bottom", fontsize=8)
+    ax.set_xlabel("time [ms]")
+    ax.set_ylabel("coil current [A]")
+    ax.set_title(f"{d.drive.name} on {d.drive.board.name}: duty {d.hold.duty:.3f} at "
+                 f"{d.hold.frequency_hz / 1e3:.4g} kHz, peak {d.pull_in.peak_time_s * 1e3:.3g} ms")
+    ax.grid(alpha=0.3)
+    ax.legend(fontsize=7, loc="upper right")
+    fig.tight_layout()
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png")
+    return buf.getvalue()

@@ -1,0 +1,98 @@
+"""Terminal report of a Design (rich tables). Reads the Design only; computes nothing."""
+
+from __future__ import annotations
+
+from rich.console import Console
+from rich.table import Table
+
+from .design import Design
+from .units import format_si
+
+
+def _ms(seconds: float) -> str:
+    return format_si(seconds, "s")
+
+
+def summary_table(d: Design) -> Table:
+    """The main figures with the corner that gave each."""
+    t = Table(title=f"coildrive design: {d.drive.name} on {d.drive.board.name}", show_lines=False)
+    t.add_column("figure")
+    t.add_column("value", justify="right")
+    t.add_column("where / how")
+    p, h, r, tm, a = d.pull_in, d.hold, d.release, d.timer, d.adc
+    rows = [
+        ("pull-in time (worst)", _ms(p.time_s), f"to {p.current_a:.4g} A at {p.worst_corner}"),
+        ("peak phase", _ms(p.peak_time_s), f"{p.peak_ticks} ticks = worst x {p.margin:g}, +1 tick"),
+        ("current at end of peak", f"<= {p.peak_end_current_max_a:.4g} A", "highest corner"),
+        ("hold frequency", format_si(h.frequency_hz, "Hz", 6),
+         f"prescaler {tm.prescaler}, period {tm.period_ticks} counts ({tm.frequency_error:+.3%})"),
+        ("hold duty", f"{h.duty:.4f}", f"compare {tm.compare_ticks}; 1 count = {h.current_step_a * 1e3:.3g} mA"),
+        ("hold mean current", f"{h.min_mean_current_a:.4g} .. {h.max_mean_current_a:.4g} A",
+         f"min at {h.min_corner}"),
+        ("hold ripple (p-p)", f"<= {h.ripple_a * 1e3:.4g} mA",
+         f"{h.discontinuous_corners} corner(s) discontinuous" if h.discontinuous_corners else "continuous conduction"),
+        ("coil power / temperature", f"{h.coil_power_w:.3g} W / {h.coil_temp_c:.1f} degC",
+         f"hottest at {h.hottest_corner}"),
+        ("release time", _ms(r.time_s), f"to {r.dropout_current_a:.4g} A via {r.freewheel}; zero after {_ms(r.zero_time_s)}"),
+        ("peak switch voltage", f"{r.peak_switch_voltage_v:.4g} V",
+         f"limit {r.switch_limit_v:.4g} V ({r.switch_rating_v:.4g} V rating, derated)"),
+        ("energy per release", format_si(r.energy_j, "J"), "into the freewheel element"),
+        ("ADC thresholds", f"{a.pull_in_code}/{a.hold_code}/{a.over_current_code}/{a.open_load_code}",
+         "pull-in / hold / over-current / open-load codes"),
+    ]
+    for row in rows:
+        t.add_row(*row)
+    return t
+
+
+def checks_table(d: Design) -> Table:
+    t = Table(title="checks")
+    t.add_column("check")
+    t.add_column("result")
+    t.add_column("detail")
+    for c in d.checks:
+        if c.ok:
+            mark = "[green]ok[/green]"
+        elif c.severity == "error":
+            mark = "[bold red]FAIL[/bold red]"
+        else:
+            mark = "[yellow]warn[/yellow]"
+        t.add_row(c.name, mark, c.detail)
+    return t
+
+
+def monte_carlo_table(mc: dict) -> Table:
+    levels = mc["percentiles"]
+    t = Table(title=f"Monte Carlo: {mc['samples']} samples ({mc['distribution']} tolerances, seed {mc['seed']})")
+    t.add_column("figure")
+    for q in levels:
+        t.add_column(f"p{q:g}", justify="right")
+    t.add_column("max", justify="right")
+    units = {"pull_in_time_s": "s", "hold_mean_current_a": "A", "hold_ripple_a": "A",
+             "coil_temp_c": "degC", "release_time_s": "s"}
+    for key, unit in units.items():
+        vals = mc[key]["values"] + [mc[key]["max"]]
+        cells = ["-" if v is None else (f"{v:.1f} degC" if unit == "degC" else format_si(v, unit))
+                 for v in vals]
+        t.add_row(key, *cells)
+    f = mc["failures"]
+    t.caption = (f"pull-in later than the peak: {f['pull_in_late']}, hold short: {f['hold_short']}, "
+                 f"coil too hot: {f['coil_too_hot']}")
+    return t
+
+
+def print_design(d: Design, console: Console | None = None) -> None:
+    """Print the summary, checks, Monte Carlo (if any) and cautions."""
+    console = console or Console()
+    console.print(summary_table(d))
+    console.print(checks_table(d))
+    if d.monte_carlo is not None:
+        console.print(monte_carlo_table(d.monte_carlo))
+    console.print("[bold]Cautions[/bold]")
+    for c in d.cautions:
+        console.print(f"  ! {c}")
+    if d.ok:
+        console.print("[green]design ok[/green]")
+    else:
+        names = ", ".join(c.name for c in d.failed)
+        console.print(f"[bold red]design FAILED[/bold red]: {names}")
