@@ -294,13 +294,12 @@ def _duty_table(drive: Drive, grid: CornerGrid, temps: np.ndarray, timer: TimerS
     else:
         volts = np.array([drive.supply.min])
     period = timer.period_ticks
-    compares = []
-    for v in volts:
-        lp = loop(drive, np.full_like(amb, v), t, rf, lf)
-        need = duty_for_mean(drive.hold.current, timer.frequency_hz, lp.v_on, lp.r_on, lp.r_off,
-                             lp.v_off, lp.inductance)
-        d = 1.0 if np.any(np.isnan(need)) else float(np.max(need))
-        compares.append(int(min(period, math.ceil(d * period - 1e-9))))
+    # one vectorised bisection over (supply entry x low-supply corner)
+    lp = loop(drive, volts[:, None] + 0.0 * amb[None, :], t[None, :], rf[None, :], lf[None, :])
+    need = duty_for_mean(drive.hold.current, timer.frequency_hz, lp.v_on, lp.r_on, lp.r_off,
+                         lp.v_off, lp.inductance)
+    worst = np.where(np.any(np.isnan(need), axis=1), 1.0, np.nanmax(np.nan_to_num(need, nan=1.0), axis=1))
+    compares = [int(min(period, math.ceil(d * period - 1e-9))) for d in worst]
     codes = [_adc_code(v / drive.board.supply_sense.divider, adc.reference, adc.bits) for v in volts]
     return DutyTable([float(v) for v in volts], codes, compares)
 

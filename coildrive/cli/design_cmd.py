@@ -133,9 +133,15 @@ def boards_command(
     from rich.table import Table
 
     table = Table(title="bundled boards")
-    for col in ("name", "timer", "ADC", "sense", "freewheel", "switch", "description"):
+    table.add_column("name", no_wrap=True)
+    for col in ("timer", "ADC", "sense", "freewheel", "switch", "link"):
         table.add_column(col)
     for b in boards:
-        table.add_row(b.name, f"{b.timer.clock / 1e6:g} MHz, {b.timer.bits}-bit", f"{b.adc.bits}-bit",
-                      b.sense.position, b.freewheel.type, f"{b.switch.max_voltage:g} V", b.description)
+        fw = b.freewheel
+        detail = {"zener": f" {fw.zener_voltage:g} V", "clamp": f" {fw.clamp_voltage:g} V",
+                  "resistor": f" {fw.resistance:g} ohm"}.get(fw.type, "")
+        table.add_row(b.name, f"{b.timer.clock / 1e6:g} MHz {b.timer.bits}-bit",
+                      f"{b.adc.bits}-bit {b.adc.reference:g} V",
+                      f"{b.sense.position} {b.sense.resistance:g} ohm x{b.sense.gain:g}",
+                      fw.type + detail, f"{b.switch.max_voltage:g} V", f"{b.link.baud} Bd")
     Console().print(table)

@@ -39,8 +39,15 @@ COPPER_ALPHA = 0.00393
 
 
 def copper_resistance(r_ref, t_ref, temp, alpha: float = COPPER_ALPHA):
-    """``R(T) = R_ref (1 + alpha (T - T_ref))`` in ohm; temperatures in degC."""
-    return np.asarray(r_ref, float) * (1.0 + alpha * (np.asarray(temp, float) - t_ref))
+    """Resistance in ohm at ``temp`` of copper measuring ``r_ref`` at ``t_ref`` (degC).
+
+    IEC 60028 makes the resistance linear in temperature about 20 degC,
+    ``R(T) = R_20 (1 + alpha_20 (T - 20))``, so with ``alpha`` the 20 degC coefficient
+    ``R(T) = R_ref (1 + alpha (T - 20)) / (1 + alpha (T_ref - 20))``; for ``T_ref = 20``
+    this is ``R_ref (1 + alpha (T - T_ref))``.
+    """
+    temp = np.asarray(temp, float)
+    return np.asarray(r_ref, float) * (1.0 + alpha * (temp - 20.0)) / (1.0 + alpha * (t_ref - 20.0))
 
 
 @dataclass(frozen=True)
@@ -85,7 +92,8 @@ def loop(drive: Drive, supply, coil_temp, r_factor=1.0, l_factor=1.0) -> Loop:
         v_off = np.full_like(supply, fw.diode_drop + fw.zener_voltage)
     inductance = coil.inductance * np.asarray(l_factor, float)
     arrays = np.broadcast_arrays(supply, r_on, r_off, v_off, inductance, r_coil)
-    supply, r_on, r_off, v_off, inductance, r_coil = (np.array(a, float) for a in arrays)
+    # read-only broadcast views: no copies of scalars spread over many points
+    supply, r_on, r_off, v_off, inductance, r_coil = arrays
     return Loop(v_on=supply, r_on=r_on, r_off=r_off, v_off=v_off, inductance=inductance,
                 r_coil=r_coil, supply=supply)
 

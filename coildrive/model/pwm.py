@@ -82,11 +82,11 @@ def pwm_steady_state(duty, frequency, v_on, r_on, r_off, v_off, inductance) -> P
                           square_on=s_on, charge_off=q_off, square_off=s_off)
 
 
-def duty_for_mean(target, frequency, v_on, r_on, r_off, v_off, inductance, iterations: int = 50):
+def duty_for_mean(target, frequency, v_on, r_on, r_off, v_off, inductance, iterations: int = 44):
     """Smallest duty whose steady-state mean current reaches ``target`` A, per point.
 
     The mean current rises monotonically with duty, so a vectorised bisection finds it
-    (50 halvings: well below one part in 10^12 of the period). Returns ``nan`` where even
+    (44 halvings: below one part in 10^13 of the period). Returns ``nan`` where even
     100 % duty falls short.
     """
     shape = np.broadcast(target, frequency, v_on, r_on, r_off, v_off, inductance).shape
