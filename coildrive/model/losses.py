@@ -1,0 +1,113 @@
+"""Where the power goes during the PWM hold: supply, copper, sense, switch, freewheel.
+
+Every PWM off-time is a small turn-off: the coil current flows on through the freewheel
+path, and whatever voltage that path holds against it takes power. From the exact
+periodic steady state (:mod:`coildrive.model.pwm`) the per-period integrals of ``i``
+and ``i^2`` over the on and off segments give each average power exactly:
+
+=====================  ==========================================================
+element                average power over one period ``T``
+=====================  ==========================================================
+supply                 ``V_bus Q_on / T`` (+ ``V_bus Q_off / T`` with a clamp to
+                       ground: the supply drives the current through it)
+coil copper            ``R_coil (S_on + S_off) / T``
+sense resistor         ``R_sense S_on / T`` (+ ``S_off`` when in the coil path)
+switch conduction      ``R_switch S_on / T``
+freewheel diode        ``V_diode Q_off / T``
+Zener                  ``V_zener Q_off / T``
+freewheel resistor     ``R_fw S_off / T``
+clamp                  ``V_clamp Q_off / T``
+=====================  ==========================================================
+
+(``Q`` = integral of ``i``, ``S`` = integral of ``i^2``.) In steady state the inductor's
+energy is the same at the start and end of every period, so the supply power equals the
+sum of the others exactly (the tests check this). Switching loss is not part of that
+ideal balance; it is estimated separately from the board's rise and fall times with the
+usual linear-transition approximation ``E = 1/2 V I t`` per edge (common practice).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..config import Drive
+from .circuit import Loop
+from .pwm import PwmSteadyState
+
+
+@dataclass(frozen=True)
+class HoldLosses:
+    """Average powers in W during the hold, arrays over operating points.
+
+    ``freewheel`` is the sum of the freewheel elements (diode + Zener + resistor, or the
+    clamp); ``switch`` is conduction plus the switching estimate.
+    """
+
+    supply: np.ndarray
+    coil: np.ndarray
+    sense: np.ndarray
+    switch_conduction: np.ndarray
+    switch_switching: np.ndarray
+    diode: np.ndarray
+    zener: np.ndarray
+    resistor: np.ndarray
+    clamp: np.ndarray
+
+    @property
+    def freewheel(self) -> np.ndarray:
+        return self.diode + self.zener + self.resistor + self.clamp
+
+    @property
+    def switch(self) -> np.ndarray:
+        return self.switch_conduction + self.switch_switching
+
+    def balance_error(self) -> np.ndarray:
+        """Supply power minus every ideal loss (W); zero in exact steady state."""
+        return self.supply - (self.coil + self.sense + self.switch_conduction + self.freewheel)
+
+
+def hold_losses(drive: Drive, lp: Loop, ss: PwmSteadyState, frequency,
+                rise_time: float = 0.0, fall_time: float = 0.0,
+                diode_drop: float | None = None, zener_voltage: float | None = None,
+                resistance: float | None = None) -> HoldLosses:
+    """Average powers of every element during the hold steady state ``ss`` (W).
+
+    ``lp`` must be the loop the steady state was computed with. ``diode_drop``,
+    ``zener_voltage`` and ``resistance`` override the freewheel path's element values
+    (a split-decay design holds through its slow path). ``rise_time``/``fall_time`` (s)
+    are the switch's voltage transition times for the switching estimate.
+    """
+    fw = drive.freewheel
+    sense = drive.board.sense
+    f = np.asarray(frequency, float)
+    q_on, s_on = ss.charge_on * f, ss.square_on * f      # A, A^2 averaged over a period
+    q_off, s_off = ss.charge_off * f, ss.square_off * f
+    zero = np.zeros_like(q_on)
+    clamp = fw.type == "clamp" and diode_drop is None
+    supply = lp.supply * (q_on + (q_off if clamp else 0.0))
+    coil = lp.r_coil * (s_on + s_off)
+    r_sense = sense.resistance
+    sense_p = r_sense * (s_on + (s_off if sense.position == "coil" else 0.0))
+    cond = drive.switch.on_resistance * s_on
+    vd = fw.diode_drop if diode_drop is None else diode_drop
+    vz = fw.zener_voltage if zener_voltage is None else zener_voltage
+    rf = fw.resistance if resistance is None else resistance
+    if clamp:
+        diode_p, zener_p, res_p = zero, zero, zero
+        clamp_p = fw.clamp_voltage * q_off
+        v_turn_off = np.full_like(q_on, fw.clamp_voltage)
+    else:
+        diode_p, zener_p, res_p = vd * q_off, vz * q_off, rf * s_off
+        clamp_p = zero
+        v_turn_off = lp.supply + vd + vz + rf * ss.i_max
+    # Linear voltage/current transitions (common practice): 1/2 V I t per edge. At
+    # turn-on the switch takes over i_min from the freewheel path (zero in DCM, when
+    # it sees only the bus voltage); at turn-off it interrupts i_max.
+    v_turn_on = np.where(ss.dcm, lp.supply, v_turn_off)
+    e_edges = 0.5 * v_turn_on * ss.i_min * rise_time + 0.5 * v_turn_off * ss.i_max * fall_time
+    switching = e_edges * f
+    return HoldLosses(supply=supply, coil=coil, sense=sense_p, switch_conduction=cond,
+                      switch_switching=switching, diode=diode_p, zener=zener_p,
+                      resistor=res_p, clamp=clamp_p)
