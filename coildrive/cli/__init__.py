@@ -8,7 +8,7 @@ from __future__ import annotations
 import typer
 
 from .. import __version__
-from . import design_cmd
+from . import design_cmd, stream_cmd
 from .common import state
 
 app = typer.Typer(
@@ -37,6 +37,7 @@ app.command("demo")(design_cmd.demo_command)
 app.command("design")(design_cmd.design_command)
 app.command("simulate")(design_cmd.simulate_command)
 app.command("boards")(design_cmd.boards_command)
+app.command("firmware-stream")(stream_cmd.firmware_stream)
 
 
 def main() -> None:

@@ -1,0 +1,46 @@
+"""Command ``firmware-stream``: write the firmware-side bench-link encoder (C)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Optional
+
+import typer
+
+from ..errors import InputError
+from ..fileio import write_atomic
+from .common import status, user_errors
+
+
+@user_errors
+def firmware_stream(
+    out_dir: Path = typer.Argument(..., help="Folder to write <prefix>_stream.h and .c into (made if missing)."),
+    prefix: str = typer.Option("coil", "--prefix", help="C name prefix: coil gives coil_stream_push(), COIL_EVENT_ON."),
+    samples_per_frame: int = typer.Option(64, "--samples-per-frame", help="ADC codes per SAMPLES frame (1..510)."),
+    blocks: int = typer.Option(8, "--blocks", help="Sample blocks buffered for the main loop (power of two, 2..128)."),
+    event_slots: int = typer.Option(16, "--event-slots", help="Events buffered (power of two, 2..128)."),
+    crc_table: bool = typer.Option(False, "--crc-table/--crc-bitwise", help="CRC by a 512-byte table or by a bitwise loop."),
+    board: Optional[str] = typer.Option(None, "--board", "-b", help="Bundled board name or board file: adds its sampling macros."),
+) -> None:
+    """Write the C encoder that streams ADC samples and events over the bench link."""
+    from ..codegen.stream import render_stream_encoder
+
+    loaded = None
+    if board is not None:
+        from ..config import load_board, resolve_board
+        loaded = load_board(resolve_board(board))
+    files = render_stream_encoder(prefix, samples_per_frame=samples_per_frame, blocks=blocks,
+                                  event_slots=event_slots, crc_table=crc_table, board=loaded)
+    if out_dir.exists() and not out_dir.is_dir():
+        raise InputError(str(out_dir), "", "exists and is not a folder")
+    try:
+        out_dir.mkdir(parents=True, exist_ok=True)
+    except OSError as err:
+        raise InputError(str(out_dir), "", f"cannot make the folder: {err.strerror}") from None
+    for name, text in files.items():
+        path = out_dir / name
+        try:
+            write_atomic(path, text)
+        except OSError as err:
+            raise InputError(str(path), "", f"cannot write: {err.strerror}") from None
+        status(f"wrote {path}")

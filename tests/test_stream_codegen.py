@@ -1,0 +1,96 @@
+"""Rendering the firmware-side encoder and the firmware-stream command (no compiler needed)."""
+
+from __future__ import annotations
+
+import re
+
+import pytest
+import typer
+from typer.testing import CliRunner
+
+from coildrive.cli.stream_cmd import firmware_stream
+from coildrive.codegen.stream import board_sampling, crc16_table, render_stream_encoder
+from coildrive.config import load_board
+from coildrive.errors import InputError
+from conftest import BOARDS
+from crc_reference import crc_model
+
+runner = CliRunner()
+
+
+def test_crc_table_is_the_catalogue_polynomial():
+    # Entry n is the register after byte n from a zero start: the CRC RevEng catalogue's
+    # CRC-16/XMODEM (poly 0x1021, init 0, no reflection) of that one byte.
+    xmodem = dict(width=16, poly=0x1021, init=0, refin=False, refout=False, xorout=0)
+    assert crc16_table() == [crc_model(bytes([n]), **xmodem) for n in range(256)]
+
+
+def test_table_variant_renders_the_table():
+    source = render_stream_encoder(crc_table=True)["coil_stream.c"]
+    entries = re.findall(r"0x([0-9A-F]{4})u", source.split("crc_table[256] = {", 1)[1].split("};", 1)[0])
+    assert [int(e, 16) for e in entries] == crc16_table()
+
+
+def test_prefix_names_everything():
+    files = render_stream_encoder("Valve_2")
+    assert set(files) == {"valve_2_stream.h", "valve_2_stream.c"}
+    text = "\n".join(files.values())
+    assert "valve_2_stream_push(" in text and "VALVE_2_EVENT_ON" in text
+    assert "coil_" not in text and "COIL_" not in text
+
+
+def test_board_sampling_macros():
+    board = load_board(BOARDS / "lab-m32-zener.toml")
+    sampling = board_sampling(board)
+    # 3.3 V / 2**12 per code, over 0.1 ohm x 20 = 2 V/A (the board file's values).
+    assert sampling.amps_per_code == pytest.approx(3.3 / 4096 / 2.0, rel=1e-12)
+    assert (sampling.rate_numerator, sampling.rate_denominator, sampling.adc_bits) == (200000, 1, 12)
+    header = render_stream_encoder(board=board)["coil_stream.h"]
+    assert "#define COIL_STREAM_RATE_NUMERATOR     200000UL" in header
+    assert "COIL_STREAM_AMPS_PER_CODE      0.000402832031f" in header
+    assert "RATE_NUMERATOR" not in render_stream_encoder()["coil_stream.h"]
+
+
+@pytest.mark.parametrize("kwargs, option", [
+    (dict(prefix="9lives"), "--prefix"),
+    (dict(prefix="a-b"), "--prefix"),
+    (dict(prefix="_x"), "--prefix"),
+    (dict(samples_per_frame=0), "--samples-per-frame"),
+    (dict(samples_per_frame=511), "--samples-per-frame"),
+    (dict(blocks=6), "--blocks"),
+    (dict(blocks=256), "--blocks"),
+    (dict(event_slots=1), "--event-slots"),
+])
+def test_bad_options_name_the_option(kwargs, option):
+    with pytest.raises(InputError) as err:
+        render_stream_encoder(**kwargs)
+    assert err.value.source == option
+
+
+def _app() -> typer.Typer:
+    app = typer.Typer()
+    app.command()(firmware_stream)
+    return app
+
+
+def test_command_writes_both_files(tmp_path):
+    out = tmp_path / "gen" / "fw"
+    r = runner.invoke(_app(), [str(out), "--prefix", "valve", "--samples-per-frame", "32",
+                               "--board", "lab-m32-zener", "--crc-table"])
+    assert r.exit_code == 0, r.output
+    assert sorted(p.name for p in out.iterdir()) == ["valve_stream.c", "valve_stream.h"]
+    assert (out / "valve_stream.h").read_text() == render_stream_encoder(
+        "valve", samples_per_frame=32, crc_table=True,
+        board=load_board(BOARDS / "lab-m32-zener.toml"))["valve_stream.h"]
+    assert "wrote" in r.stderr and r.stdout == ""
+
+
+def test_command_bad_input_is_one_line_exit_2(tmp_path):
+    r = runner.invoke(_app(), [str(tmp_path), "--blocks", "3"])
+    assert r.exit_code == 2
+    assert r.stderr.strip().splitlines() == ["coildrive: --blocks: 3 is not a power of two (2, 4, 8, ... 128)"]
+    blocker = tmp_path / "file"
+    blocker.write_text("x")
+    r = runner.invoke(_app(), [str(blocker)])
+    assert r.exit_code == 2 and "is not a folder" in r.stderr
+    assert list(tmp_path.iterdir()) == [blocker], "nothing written on bad input"
