@@ -214,3 +214,12 @@ def test_debug_shows_traceback(tmp_path):
 def test_version():
     r = run_cli("--version")
     assert r.returncode == 0 and r.stdout.startswith("coildrive ")
+
+
+def test_firmware_stream_command(tmp_path):
+    r = run_cli("firmware-stream", str(tmp_path / "fw"), "--prefix", "valve", "--board", "lab-m32-zener")
+    assert r.returncode == 0, r.stderr
+    assert (tmp_path / "fw" / "valve_stream.h").is_file() and (tmp_path / "fw" / "valve_stream.c").is_file()
+    r = run_cli("firmware-stream", str(tmp_path / "fw2"), "--blocks", "3")
+    assert r.returncode == 2 and "--blocks" in r.stderr and "Traceback" not in r.stderr
+    assert not (tmp_path / "fw2" / "coil_stream.h").exists()
