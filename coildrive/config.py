@@ -25,6 +25,8 @@ _MISSING = object()
 FREEWHEEL_TYPES = ("diode", "zener", "resistor", "clamp")
 SENSE_POSITIONS = ("coil", "switch")
 HOLD_MODES = ("voltage", "current")
+CURRENT_CONTROLS = ("hysteretic", "off_time")
+_CURRENT_MODE_KEYS = ("control", "band", "off_time", "min_frequency", "max_frequency", "sense_delay")
 DISTRIBUTIONS = ("uniform", "normal")
 
 
@@ -84,12 +86,29 @@ class Hold:
 
     ``frequency_tolerance`` is the largest relative error accepted between the asked
     frequency and the one the timer can make.
+
+    Current-mode hold only (``mode = "current"``, see docs/tuning.md): ``control`` is
+    ``"hysteretic"`` (switch on below a lower, off above an upper ADC threshold; needs
+    the sense resistor in the coil path) or ``"off_time"`` (switch off at a peak
+    threshold for a fixed, timer-made off time; works with either sense position).
+    ``band`` (A, upper - lower threshold) and ``off_time`` (s) are sized from
+    ``frequency`` at the nominal point when 0. The switching frequency must stay within
+    ``min_frequency``..``max_frequency`` (Hz; 0 = the board's
+    ``timer.max_pwm_frequency``, else 100 kHz) at every corner. ``sense_delay`` (s) is
+    the time from a threshold crossing to the switch edge (comparator, ADC conversion,
+    interrupt latency).
     """
 
     current: float
     frequency: float
     mode: str = "voltage"
     frequency_tolerance: float = 0.01
+    control: str = "hysteretic"
+    band: float = 0.0
+    off_time: float = 0.0
+    min_frequency: float = 20_000.0
+    max_frequency: float = 0.0
+    sense_delay: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -106,6 +125,10 @@ class Armature:
     ``spring_preload`` is the spring force at the open position; ``spring_rate`` raises it
     as the armature closes. ``load_force`` is constant and pushes open.
     ``restitution`` is the bounce factor at the seated stop (0 = inelastic).
+    ``current_margin`` multiplies the least currents the mechanics need when the drive
+    file leaves ``pull_in.current`` or ``hold.current`` out (see docs/armature.md);
+    ``derived`` names the keys so filled in (``"pull_in.current"``, ``"hold.current"``,
+    ``"release.current"``).
     """
 
     inductance_open: float
@@ -117,6 +140,8 @@ class Armature:
     load_force: float
     damping: float
     restitution: float = 0.0
+    current_margin: float = 1.25
+    derived: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -124,13 +149,16 @@ class Timer:
     """PWM timer: input clock in Hz, counter width in bits, largest prescaler divide ratio.
 
     ``prescalers`` lists the only divide ratios the timer has, for timers with a fixed
-    set (empty: every ratio 1..prescaler_max).
+    set (empty: every ratio 1..prescaler_max). ``max_pwm_frequency`` (Hz, 0 = not
+    given) is the highest hold switching frequency this board is meant for (gate drive,
+    switching loss); ``coildrive tune`` sweeps up to it.
     """
 
     clock: float
     bits: int
     prescaler_max: int
     prescalers: tuple[int, ...] = ()
+    max_pwm_frequency: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -166,12 +194,16 @@ class SupplySense:
 class Switch:
     """Low-side switch: on-resistance in ohm, voltage rating in V, derating fraction.
 
-    The peak switch voltage must stay below ``max_voltage * derating``.
+    The peak switch voltage must stay below ``max_voltage * derating``. ``rise_time``
+    and ``fall_time`` (s, 0 = not given) are the switching transition times used for
+    the switching-loss estimate of ``coildrive tune``.
     """
 
     on_resistance: float
     max_voltage: float
     derating: float = 0.8
+    rise_time: float = 0.0
+    fall_time: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -251,8 +283,30 @@ class Drive:
         data = dataclasses.asdict(self)
         data.pop("source", None)
         data["board"].pop("source", None)
+        _drop_later_defaults(data)
         text = json.dumps(data, sort_keys=True, separators=(",", ":"))
         return hashlib.sha256(text.encode("utf-8")).hexdigest()[:16]
+
+
+#: Keys added after the first release: left out of the input hash while they hold their
+#: default, so that files which do not use them keep their hash (and headers their bytes).
+_LATER_FIELDS = (
+    (("hold",), Hold, _CURRENT_MODE_KEYS),
+    (("switch",), Switch, ("rise_time", "fall_time")),
+    (("board", "switch"), Switch, ("rise_time", "fall_time")),
+    (("board", "timer"), Timer, ("max_pwm_frequency",)),
+)
+
+
+def _drop_later_defaults(data: dict) -> None:
+    for path, cls, names in _LATER_FIELDS:
+        node = data
+        for part in path:
+            node = node[part]
+        defaults = {f.name: f.default for f in dataclasses.fields(cls)}
+        for name in names:
+            if name in node and node[name] == defaults[name]:
+                del node[name]
 
 
 # --------------------------------------------------------------------------- reading
@@ -392,6 +446,8 @@ def _read_switch(sec: _Section) -> Switch:
         on_resistance=sec.quantity("on_resistance", "resistance", nonnegative=True),
         max_voltage=sec.quantity("max_voltage", "voltage", positive=True),
         derating=sec.fraction("derating", 0.8, below_one=False),
+        rise_time=sec.quantity("rise_time", "time", 0.0, nonnegative=True),
+        fall_time=sec.quantity("fall_time", "time", 0.0, nonnegative=True),
     )
     if not 0 < switch.derating <= 1:
         raise sec.fail("derating", f"{switch.derating:g} must be in (0, 1], e.g. 0.8")
@@ -421,6 +477,72 @@ def _read_freewheel(sec: _Section) -> Freewheel:
     return Freewheel(kind, diode, zener, resistance, clamp)
 
 
+def _read_armature(s: _Section) -> Armature:
+    arm = Armature(
+        inductance_open=s.quantity("inductance_open", "inductance", positive=True),
+        inductance_closed=s.quantity("inductance_closed", "inductance", positive=True),
+        stroke=s.quantity("stroke", "length", positive=True),
+        mass=s.quantity("mass", "mass", positive=True),
+        spring_preload=s.quantity("spring_preload", "force", nonnegative=True),
+        spring_rate=s.quantity("spring_rate", "stiffness", nonnegative=True),
+        load_force=s.quantity("load_force", "force", 0.0),
+        damping=s.quantity("damping", "damping", 0.0, nonnegative=True),
+        restitution=s.fraction("restitution", 0.0),
+        current_margin=s.quantity("current_margin", "dimensionless", 1.25),
+    )
+    if arm.inductance_closed < arm.inductance_open:
+        raise s.fail("inductance_closed", "is below inductance_open, expected the closed "
+                     "(seated) inductance to be the larger")
+    if not arm.spring_preload + arm.load_force > 0:
+        raise s.fail("spring_preload", f"spring_preload + load_force = "
+                     f"{arm.spring_preload + arm.load_force:g} N, expected a force > 0 that holds "
+                     "the armature on its open stop with no current")
+    if arm.current_margin < 1:
+        raise s.fail("current_margin", f"{arm.current_margin:g} is below 1, expected a factor "
+                     ">= 1 on the currents the mechanics need (e.g. 1.25)")
+    s.finish()
+    return arm
+
+
+def _mechanics_currents(arm: Armature, coil: Coil) -> dict[str, float]:
+    """Currents (A) the mechanics need, for keys a drive file leaves out: pull-in and hold
+    are the static force-balance currents at the lowest inductance of the tolerance band
+    times ``current_margin``; the drop-out is the nominal stay current (no margin: it is
+    a prediction, not a requirement)."""
+    from .model import magnet
+
+    lc, beta = magnet.fit_gap(arm.inductance_open, arm.inductance_closed, arm.stroke)
+    low = lc * (1.0 - coil.inductance_tolerance)
+    mech = (arm.stroke, arm.spring_preload, arm.spring_rate, arm.load_force)
+    through, _ = magnet.stroke_current(low, beta, *mech)
+    return {"pull_in": arm.current_margin * float(through),
+            "hold": arm.current_margin * float(magnet.stay_current(low, beta, *mech)),
+            "release": float(magnet.stay_current(lc, beta, *mech))}
+
+
+def _read_current_mode(s: _Section, hold: Hold) -> Hold:
+    """The current-mode keys of ``[hold]`` (rejected with ``mode = "voltage"``)."""
+    if hold.mode != "current":
+        for key in _CURRENT_MODE_KEYS:
+            if key in s.table:
+                raise s.fail(key, "is only used with mode = \"current\" (current-mode hold)")
+        return hold
+    control = s.choice("control", CURRENT_CONTROLS, "hysteretic")
+    band = s.quantity("band", "current", 0.0, nonnegative=True)
+    off_time = s.quantity("off_time", "time", 0.0, nonnegative=True)
+    if control != "hysteretic" and "band" in s.table:
+        raise s.fail("band", f"is for control = \"hysteretic\"; control = \"{control}\" uses off_time")
+    if control != "off_time" and "off_time" in s.table:
+        raise s.fail("off_time", f"is for control = \"off_time\"; control = \"{control}\" uses band")
+    f_min = s.quantity("min_frequency", "frequency", 20_000.0, positive=True)
+    f_max = s.quantity("max_frequency", "frequency", 0.0, nonnegative=True)
+    if f_max and f_max <= f_min:
+        raise s.fail("max_frequency", f"{f_max:g} Hz is not above hold.min_frequency ({f_min:g} Hz)")
+    delay = s.quantity("sense_delay", "time", 0.0, nonnegative=True)
+    return dataclasses.replace(hold, control=control, band=band, off_time=off_time,
+                               min_frequency=f_min, max_frequency=f_max, sense_delay=delay)
+
+
 def load_board(path: str | Path) -> Board:
     """Read a board file. Raises :class:`InputError` naming the key on bad input."""
     path = Path(path)
@@ -439,7 +561,8 @@ def load_board(path: str | Path) -> Board:
     timer = Timer(s.quantity("clock", "frequency", positive=True),
                   s.integer("bits", low=8, high=32),
                   s.integer("prescaler_max", 1, low=1, high=2**32 - 1),
-                  s.integer_list("prescalers", (), low=1, high=2**32 - 1))
+                  s.integer_list("prescalers", (), low=1, high=2**32 - 1),
+                  s.quantity("max_pwm_frequency", "frequency", 0.0, nonnegative=True))
     if timer.prescalers and max(timer.prescalers) > timer.prescaler_max:
         raise s.fail("prescalers", f"{max(timer.prescalers)} is above timer.prescaler_max "
                      f"({timer.prescaler_max})")
@@ -520,11 +643,14 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
     def sec(name: str) -> _Section:
         return _Section(source, _table(source, data, name), name)
 
+    armature = _read_armature(sec("armature")) if "armature" in data else None
     s = sec("coil")
     coil = Coil(
         resistance=s.quantity("resistance", "resistance", positive=True),
         reference_temp=s.quantity("reference_temp", "temperature", 20.0),
-        inductance=s.quantity("inductance", "inductance", positive=True),
+        inductance=s.quantity("inductance", "inductance",
+                              _MISSING if armature is None else armature.inductance_closed,
+                              positive=True),
         resistance_tolerance=s.fraction("resistance_tolerance", 0.0),
         inductance_tolerance=s.fraction("inductance_tolerance", 0.0),
         tolerance_distribution=s.choice("tolerance_distribution", DISTRIBUTIONS, "uniform"),
@@ -555,49 +681,52 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
         raise s.fail("max_coil_temp", f"{thermal.max_coil_temp:g} degC is not above ambient.max "
                      f"({ambient.max:g} degC), expected the coil's temperature limit")
     s.finish()
-    s = sec("pull_in")
-    pull_in = PullIn(s.quantity("current", "current", positive=True),
+    # With [armature], the currents the file leaves out come from the force balance.
+    need = _mechanics_currents(armature, coil) if armature is not None else None
+    derived: list[str] = []
+
+    def current(sec_: _Section, key: str, mech: float | None) -> float:
+        if need is None or key in sec_.table:
+            return sec_.quantity(key, "current", positive=True)
+        sec_.used.add(key)
+        if not mech > 0:
+            raise sec_.fail(key, "missing, and the mechanics need none (spring + load do not "
+                            "push the seated armature open): give a value")
+        if not mech < float("inf"):
+            raise sec_.fail(key, "missing, and the mechanics cannot give it: with "
+                            "armature.inductance_open = inductance_closed there is no magnetic "
+                            "force; give a value")
+        derived.append(f"{sec_.name}.{key}")
+        return mech
+
+    optional = armature is not None
+    s = _Section(source, _table(source, data, "pull_in", required=not optional) or {}, "pull_in")
+    pull_in = PullIn(current(s, "current", None if need is None else need["pull_in"]),
                      s.quantity("margin", "dimensionless", 1.5))
     if pull_in.margin < 1:
         raise s.fail("margin", f"{pull_in.margin:g} is below 1, expected a factor >= 1 on the "
                      "worst-case pull-in time (e.g. 1.5)")
     s.finish()
     s = sec("hold")
-    hold = Hold(s.quantity("current", "current", positive=True),
+    hold = Hold(current(s, "current", None if need is None else need["hold"]),
                 s.quantity("frequency", "frequency", positive=True),
                 s.choice("mode", HOLD_MODES, "voltage"),
                 s.fraction("frequency_tolerance", 0.01))
+    hold = _read_current_mode(s, hold)
     if hold.current >= pull_in.current:
-        raise s.fail("current", f"{hold.current:g} A is not below pull_in.current "
+        what = " (derived from the mechanics)" if "hold.current" in derived else ""
+        raise s.fail("current", f"{hold.current:g} A{what} is not below pull_in.current "
                      f"({pull_in.current:g} A), expected hold < pull-in")
-    if hold.mode == "current":
-        raise s.fail("mode", "'current' (current-mode hold) is not designed yet; use 'voltage'")
     s.finish()
-    s = sec("release")
-    release = Release(s.quantity("current", "current", positive=True))
+    s = _Section(source, _table(source, data, "release", required=not optional) or {}, "release")
+    release = Release(current(s, "current", None if need is None else need["release"]))
     if release.current >= hold.current:
-        raise s.fail("current", f"{release.current:g} A drop-out is not below hold.current "
+        what = " (derived from the mechanics)" if "release.current" in derived else ""
+        raise s.fail("current", f"{release.current:g} A{what} drop-out is not below hold.current "
                      f"({hold.current:g} A), expected drop-out < hold")
     s.finish()
-
-    armature = None
-    if "armature" in data:
-        s = sec("armature")
-        armature = Armature(
-            inductance_open=s.quantity("inductance_open", "inductance", positive=True),
-            inductance_closed=s.quantity("inductance_closed", "inductance", positive=True),
-            stroke=s.quantity("stroke", "length", nonnegative=True),
-            mass=s.quantity("mass", "mass", positive=True),
-            spring_preload=s.quantity("spring_preload", "force", nonnegative=True),
-            spring_rate=s.quantity("spring_rate", "stiffness", nonnegative=True),
-            load_force=s.quantity("load_force", "force", 0.0),
-            damping=s.quantity("damping", "damping", 0.0, nonnegative=True),
-            restitution=s.fraction("restitution", 0.0),
-        )
-        if armature.inductance_closed < armature.inductance_open:
-            raise s.fail("inductance_closed", "is below inductance_open, expected the closed "
-                         "(seated) inductance to be the larger")
-        s.finish()
+    if armature is not None and derived:
+        armature = dataclasses.replace(armature, derived=tuple(derived))
 
     merged, origins = _merged(brd.source, dataclasses.asdict(brd.switch), source,
                               data.get("switch"))

@@ -75,6 +75,64 @@ class Corner:
     release_zero_time_s: float
     peak_switch_voltage_v: float
     release_energy_j: float
+    armature: dict | None = None
+
+
+#: Per-corner keys added with an ``[armature]`` (flattened into each JSON corner).
+ARMATURE_CORNER_KEYS = (
+    "seat_time_s", "impact_time_s", "dip_current_a", "dip_time_s", "dip_depth_a",
+    "start_time_s", "bounces", "release_unlatch_time_s", "release_open_time_s",
+    "start_current_a", "stay_current_a", "stroke_current_a", "hold_force_current_a",
+    "hold_force_margin", "hold_lift_m", "armature_status", "release_status",
+)
+
+
+@dataclass(frozen=True)
+class ArmatureResult:
+    """The moving armature across the corners (``design --json`` key ``armature``).
+
+    Fit: ``equivalent_gap_m`` (g0) and ``force_constant_h_m`` (K) of
+    ``L(x) = K / (x + g0)``. Currents (A) the mechanics need, largest over the corners
+    (the lowest inductance of the tolerance band): ``start_current_a`` (off the open
+    stop), ``stroke_current_a`` (over the whole stroke, at gap ``stroke_current_gap_m``),
+    ``stay_current_a`` (to stay seated; also the predicted drop-out). Margins are the
+    file's (or derived) current over that need. Times in s, worst corner named.
+    """
+
+    inductance_open_h: float
+    inductance_closed_h: float
+    stroke_m: float
+    equivalent_gap_m: float
+    force_constant_h_m: float
+    slope_open_h_m: float
+    slope_closed_h_m: float
+    current_margin: float
+    derived: list[str]
+    start_current_a: float
+    stroke_current_a: float
+    stroke_current_gap_m: float
+    stay_current_a: float
+    dropout_current_a: float
+    pull_in_current_margin: float
+    hold_current_margin: float
+    seat_time_s: float
+    seat_corner: str
+    seat_time_min_s: float
+    dip_current_a: float
+    dip_time_s: float
+    dip_current_min_a: float
+    release_open_time_s: float
+    release_corner: str
+    hold_force_current_a: float
+    hold_force_margin: float
+    hold_force_corner: str
+    hold_force_basis: str
+    hottest_low_supply_corner: str
+    hottest_low_supply_margin: float
+    hold_lift_max_m: float
+    seated_corners: int
+    opened_corners: int
+    corners: int
 
 
 @dataclass(frozen=True)
@@ -191,6 +249,7 @@ class Design:
     input_hash: str = ""
     worst_corner_index: int = 0
     extra: dict = field(default_factory=dict)
+    armature: ArmatureResult | None = None
 
     @property
     def ok(self) -> bool:
@@ -224,13 +283,53 @@ class Design:
             "adc": asdict(self.adc),
             "duty_table": asdict(self.duty_table),
             "nominal": asdict(self.nominal),
-            "corners": [asdict(c) for c in self.corners],
+            "corners": [_corner_dict(c) for c in self.corners],
             "checks": [asdict(c) for c in self.checks],
             "cautions": list(self.cautions),
         }
+        out["nominal"] = _corner_dict(self.nominal)
+        if self.armature is not None:
+            out["armature"] = asdict(self.armature)
+        if "current_mode" in self.extra:
+            out["current_mode"] = asdict(self.extra["current_mode"])
         if self.monte_carlo is not None:
             out["monte_carlo"] = self.monte_carlo
         return clean(out)
+
+
+def _corner_dict(c: Corner) -> dict:
+    """A corner as JSON: the armature figures, when there are any, flattened in."""
+    d = asdict(c)
+    arm = d.pop("armature")
+    if arm is not None:
+        d.update(arm)
+    return d
+
+
+_PULL_STATUS = {0: "seated", 1: "never starts", 2: "stalls"}
+_RELEASE_STATUS = {0: "opens", 2: "stays closed"}
+
+
+def _corner_armature(res: PointResults, k: int) -> dict | None:
+    a = res.armature
+    if a is None:
+        return None
+    pin, rel = a.pull_in, a.release
+    return {
+        "seat_time_s": float(pin.seat_time[k]), "impact_time_s": float(pin.impact_time[k]),
+        "dip_current_a": float(pin.dip_current[k]), "dip_time_s": float(pin.dip_time[k]),
+        "dip_depth_a": float(pin.dip_depth[k]), "start_time_s": float(pin.start_time[k]),
+        "bounces": int(pin.bounces[k]),
+        "release_unlatch_time_s": float(rel.unlatch_time[k]),
+        "release_open_time_s": float(rel.open_time[k]),
+        "start_current_a": float(a.start_current[k]), "stay_current_a": float(a.stay_current[k]),
+        "stroke_current_a": float(a.stroke_current[k]),
+        "hold_force_current_a": float(a.hold_current[k]),
+        "hold_force_margin": float(a.hold_current[k] / a.stay_current[k]),
+        "hold_lift_m": float(a.hold_lift[k]),
+        "armature_status": _PULL_STATUS[int(pin.status[k])],
+        "release_status": _RELEASE_STATUS[int(rel.status[k])],
+    }
 
 
 def _corners(grid: CornerGrid, res: PointResults) -> list[Corner]:
@@ -249,6 +348,7 @@ def _corners(grid: CornerGrid, res: PointResults) -> list[Corner]:
             release_zero_time_s=float(res.release_zero_time[k]),
             peak_switch_voltage_v=float(res.peak_switch_voltage[k]),
             release_energy_j=float(res.release_energy[k]),
+            armature=_corner_armature(res, k),
         ))
     return out
 
@@ -271,7 +371,7 @@ def _quantised_compare(drive: Drive, grid: CornerGrid, duty: float, timer: Timer
     compare = min(period, max(0, math.ceil(duty * period - 1e-9)))
     while compare < period:
         res = evaluate(drive, grid.supply, grid.ambient, grid.r_factor, grid.l_factor,
-                       compare / period, timer.frequency_hz, 0.0)
+                       compare / period, timer.frequency_hz, 0.0, mechanics=False)
         if np.min(res.hold.mean) >= drive.hold.current:
             break
         compare += 1
@@ -308,8 +408,12 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     """Design the peak-and-hold drive for ``drive`` (see the module docstring).
 
     ``samples`` > 0 adds a tolerance Monte Carlo of that many points (see
-    :func:`coildrive.montecarlo.monte_carlo`).
+    :func:`coildrive.montecarlo.monte_carlo`). A current-mode hold
+    (``hold.mode = "current"``) is designed by :mod:`coildrive.current_hold`.
     """
+    if drive.hold.mode == "current":
+        from .current_hold import design_current_mode
+        return design_current_mode(drive, samples, seed)
     board = drive.board
     grid = corner_grid(drive)
     timer = solve_timer(board.timer.clock, board.timer.bits, board.timer.prescaler_max,
@@ -332,7 +436,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
         peak_ticks = 0
     peak_time = peak_ticks / tick_rate
     res = evaluate(drive, grid.supply, grid.ambient, grid.r_factor, grid.l_factor, duty, f_hold,
-                   peak_time)
+                   peak_time, reuse=first)
     corners = _corners(grid, res)
     nom_grid = nominal_point(drive)
     nom = evaluate(drive, nom_grid.supply, nom_grid.ambient, nom_grid.r_factor, nom_grid.l_factor,
@@ -361,7 +465,11 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     k_rel = _worst(res.release_time)
     rating = drive.switch.max_voltage
     limit = rating * drive.switch.derating
-    lockout = math.ceil(float(np.max(res.release_zero_time)) * tick_rate - 1e-9) + 1
+    # Wait for zero current -- and, with an armature, for it to be back on the open stop.
+    settle = float(np.max(res.release_zero_time))
+    if res.armature is not None:
+        settle = max(settle, float(np.max(res.release_time)))
+    lockout = math.ceil(settle * tick_rate - 1e-9) + 1 if math.isfinite(settle) else 0
     release = ReleaseResult(
         freewheel=drive.freewheel.type, dropout_current_a=drive.release.current,
         time_s=float(res.release_time[k_rel]), zero_time_s=float(np.max(res.release_zero_time)),
@@ -397,7 +505,16 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     table = _duty_table(drive, grid, res.coil_temp, timer)
 
     checks = _checks(drive, grid, res, pull_in, hold, release, timer_result, thresholds, timer)
+    arm = None
+    if res.armature is not None:
+        arm = _armature_result(drive, grid, res)
+        checks += _armature_checks(drive, grid, res, arm, release)
     cautions = _cautions(drive, hold, release)
+    if arm is not None:
+        cautions.append(
+            "Pull-in and release moments come from the mechanical figures in [armature]; confirm "
+            "the current dip and the release on the bench before relying on the margins of a "
+            "safety-relevant actuator (an armature that fails to release keeps the load engaged).")
     waveforms = {
         "nominal": _waveform(drive, nom, 0, peak_time, duty, f_hold, "nominal"),
         "worst": _waveform(drive, res, k_pull, peak_time, duty, f_hold,
@@ -410,7 +527,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     return Design(drive=drive, pull_in=pull_in, hold=hold, release=release, timer=timer_result,
                   adc=thresholds, duty_table=table, corners=corners, nominal=nominal,
                   checks=checks, cautions=cautions, monte_carlo=mc, waveforms=waveforms,
-                  input_hash=drive.input_hash(), worst_corner_index=k_pull)
+                  input_hash=drive.input_hash(), worst_corner_index=k_pull, armature=arm)
 
 
 def _waveform(drive: Drive, res: PointResults, k: int, peak_time: float, duty: float,
@@ -510,4 +627,180 @@ def _cautions(drive: Drive, hold: HoldResult, release: ReleaseResult) -> list[st
         "These figures are a design aid, not a safety approval: for mains-connected or safety-relevant "
         "equipment follow local codes and licensed practice.",
     ]
+    return out
+
+
+# --------------------------------------------------------------------------- armature
+def _armature_result(drive: Drive, grid: CornerGrid, res: PointResults) -> ArmatureResult:
+    from .model.magnet import equivalent_gap, fit_gap, inductance_slope
+
+    arm = drive.armature
+    a = res.armature
+    pin, rel = a.pull_in, a.release
+    lc, beta = fit_gap(arm.inductance_open, arm.inductance_closed, arm.stroke)
+    g0 = float(equivalent_gap(beta))
+    k_seat = _worst(pin.seat_time)
+    seated = pin.status == 0
+    k_early = _worst(np.where(seated, pin.seat_time, np.inf), largest=False)
+    k_rel = _worst(rel.open_time)
+    ratio = a.hold_current / a.stay_current
+    k_hold = _worst(ratio, largest=False)
+    low = grid.supply == np.min(grid.supply)
+    k_hl = int(np.flatnonzero(low)[_worst(res.coil_temp[low])])
+    k_through = _worst(a.stroke_current)
+    through = float(a.stroke_current[k_through])
+    stay = float(np.max(a.stay_current))
+    lift_ok = a.hold_lift <= 0
+    basis = ("RMS current (the ripple never drops below the stay current)" if np.all(lift_ok) else
+             "RMS current where the mass averages the ripple, else the ripple bottom")
+    dip = pin.dip_current
+    return ArmatureResult(
+        inductance_open_h=arm.inductance_open, inductance_closed_h=arm.inductance_closed,
+        stroke_m=arm.stroke, equivalent_gap_m=g0,
+        force_constant_h_m=float(lc * g0) if math.isfinite(g0) else math.inf,
+        slope_open_h_m=float(inductance_slope(arm.stroke, lc, beta)),
+        slope_closed_h_m=float(inductance_slope(0.0, lc, beta)),
+        current_margin=arm.current_margin, derived=list(arm.derived),
+        start_current_a=float(np.max(a.start_current)), stroke_current_a=through,
+        stroke_current_gap_m=float(a.stroke_gap[k_through]), stay_current_a=stay,
+        dropout_current_a=float(np.min(a.stay_current)),
+        pull_in_current_margin=drive.pull_in.current / through if through > 0 else math.inf,
+        hold_current_margin=drive.hold.current / stay if stay > 0 else math.inf,
+        seat_time_s=float(pin.seat_time[k_seat]), seat_corner=grid.label(k_seat),
+        seat_time_min_s=float(pin.seat_time[k_early]),
+        dip_current_a=float(dip[k_seat]), dip_time_s=float(pin.dip_time[k_seat]),
+        dip_current_min_a=float(np.nanmin(dip)) if np.any(np.isfinite(dip)) else math.nan,
+        release_open_time_s=float(rel.open_time[k_rel]), release_corner=grid.label(k_rel),
+        hold_force_current_a=float(a.hold_current[k_hold]), hold_force_margin=float(ratio[k_hold]),
+        hold_force_corner=grid.label(k_hold), hold_force_basis=basis,
+        hottest_low_supply_corner=grid.label(k_hl), hottest_low_supply_margin=float(ratio[k_hl]),
+        hold_lift_max_m=float(np.max(a.hold_lift)),
+        seated_corners=int(np.sum(seated)), opened_corners=int(np.sum(rel.status == 0)),
+        corners=len(grid),
+    )
+
+
+def _mm(metres: float) -> str:
+    return f"{metres * 1e3:.3g} mm"
+
+
+def _armature_checks(drive: Drive, grid: CornerGrid, res: PointResults, ar: ArmatureResult,
+                     release: ReleaseResult) -> list[Check]:
+    """Checks of the moving armature: it seats, stays seated, lets go; the file's currents
+    against the force balance."""
+    from .model.armature import CHATTER_FRACTION, NO_START
+
+    arm = drive.armature
+    a = res.armature
+    pin, rel = a.pull_in, a.release
+    out: list[Check] = []
+    add = out.append
+    i_inf = res.loop.v_on / res.loop.r_on
+
+    # It seats at every corner.
+    bad = np.flatnonzero(pin.status != 0)
+    if bad.size == 0:
+        add(Check("armature_seats", True,
+                  f"seated at every corner, latest {ar.seat_time_s * 1e3:.4g} ms ({ar.seat_corner}); "
+                  f"current dip {ar.dip_current_a:.4g} A at the seat moment"))
+    else:
+        k = int(bad[0])
+        where = f"{bad.size} of {len(grid)} corners, e.g. {grid.label(k)}"
+        if pin.status[k] == NO_START:
+            force = arm.spring_preload + arm.load_force
+            why = (f"the coil reaches only {i_inf[k]:.4g} A but spring preload + load "
+                   f"({force:.4g} N) need {a.start_current[k]:.4g} A at the open gap: the "
+                   "armature never moves")
+            if not np.isfinite(a.start_current[k]):
+                why = ("inductance_open = inductance_closed: the coil makes no force on the "
+                       "armature")
+            fix = " — a stronger spring than the coil can pull: lower spring_preload/load_force, raise the supply or use a coil with more ampere-turns"
+        elif a.stroke_current[k] >= i_inf[k]:
+            why = (f"the armature stalls at gap {_mm(pin.stall_gap[k])}: spring + load need "
+                   f"{a.stroke_current[k]:.4g} A at gap {_mm(a.stroke_gap[k])} but the coil "
+                   f"carries at most {i_inf[k]:.4g} A")
+            fix = " — the spring rate or the load keeps it from seating: lower them or raise the current"
+        else:
+            why = (f"not seated within {pin.bound[k] * 1e3:.4g} ms (gap {_mm(pin.stall_gap[k])} "
+                   "at the end): the armature moves too slowly (mass, damping)")
+            fix = " — check mass and damping"
+        add(Check("armature_seats", False, f"not seated at {where}: {why}{fix}"))
+
+    # It stays seated through the hold (closed-gap force balance).
+    hold_ok = bool(ar.hold_force_margin >= 1.0 and np.all(np.isfinite(a.hold_current)))
+    add(Check("armature_hold", hold_ok,
+              f"hold force current {ar.hold_force_current_a:.4g} A vs {ar.stay_current_a:.4g} A to "
+              f"stay seated (closed-gap force balance), margin x{ar.hold_force_margin:.3g} at "
+              f"{ar.hold_force_corner}; x{ar.hottest_low_supply_margin:.3g} at the hottest, "
+              f"lowest-supply corner ({ar.hottest_low_supply_corner}); counted as the {ar.hold_force_basis}"
+              + ("" if hold_ok else " — raise hold.current: the armature would drop out during the hold")))
+
+    # PWM ripple: can the armature chatter within one period?
+    limit = CHATTER_FRACTION * min(arm.stroke, ar.equivalent_gap_m)
+    add(Check("armature_chatter", bool(ar.hold_lift_max_m <= limit),
+              f"largest lift within one PWM period {ar.hold_lift_max_m * 1e6:.3g} um vs "
+              f"{limit * 1e6:.3g} um ({CHATTER_FRACTION:.0%} of min(stroke, equivalent gap): our "
+              "choice)" + ("" if ar.hold_lift_max_m <= limit else
+                           " — the ripple bottom falls below the stay current long enough to lift "
+                           "the armature: raise the PWM frequency"),
+              severity="warning"))
+
+    # It lets go and returns to the open stop.
+    bad = np.flatnonzero(rel.status != 0)
+    if bad.size == 0:
+        add(Check("armature_releases", True,
+                  f"back on the open stop at every corner, latest {ar.release_open_time_s * 1e3:.4g} ms "
+                  f"after turn-off ({ar.release_corner}) through the {drive.freewheel.type} path"))
+    else:
+        k = int(bad[0])
+        add(Check("armature_releases", False,
+                  f"not back on the open stop at {bad.size} of {len(grid)} corners, e.g. {grid.label(k)}: "
+                  f"gap {_mm(rel.stall_gap[k])} after {rel.bound[k] * 1e3:.4g} ms — spring preload + load "
+                  f"({arm.spring_preload + arm.load_force:.4g} N at the open stop) against damping "
+                  f"{arm.damping:.4g} N*s/m: a stronger return spring or less damping"))
+
+    # The file's currents against the force balance.
+    def compare(key: str, name: str, value: float, need: float, what: str) -> None:
+        ratio = value / need if need > 0 else math.inf
+        if key in arm.derived:
+            add(Check(name, True, f"{key} not given: derived {value:.4g} A = x{arm.current_margin:g} "
+                      f"(armature.current_margin) on {need:.4g} A {what}"))
+            return
+        if ratio >= arm.current_margin:
+            add(Check(name, True, f"{key} {value:.4g} A vs {need:.4g} A {what}: "
+                      f"x{ratio:.3g} (at least x{arm.current_margin:g} asked)"))
+        elif ratio >= 1.0:
+            add(Check(name, False, f"{key} {value:.4g} A vs {need:.4g} A {what}: only "
+                      f"{(ratio - 1) * 100:.3g} % above, below the x{arm.current_margin:g} of "
+                      "armature.current_margin", severity="warning"))
+        else:
+            add(Check(name, False, f"{key} {value:.4g} A disagrees with the mechanics: "
+                      f"{(1 - ratio) * 100:.3g} % below the {need:.4g} A {what}"))
+
+    compare("pull_in.current", "pull_in_current_mechanics", drive.pull_in.current,
+            ar.stroke_current_a, "the mechanics need to pull in over the whole stroke (static "
+            "force balance, lowest inductance)")
+    compare("hold.current", "hold_current_mechanics", drive.hold.current, ar.stay_current_a,
+            "the mechanics need to stay seated (static force balance, lowest inductance)")
+    if "release.current" in arm.derived:
+        add(Check("release_current_mechanics", True,
+                  f"release.current not given: the predicted drop-out {drive.release.current:.4g} A "
+                  "(nominal stay current)"))
+    else:
+        lo, hi = ar.dropout_current_a, ar.stay_current_a
+        inside = lo * 0.9 <= drive.release.current <= hi * 1.1
+        off = (drive.release.current / (lo if drive.release.current < lo else hi) - 1) * 100
+        add(Check("release_current_mechanics", bool(inside),
+                  f"release.current {drive.release.current:.4g} A vs the mechanics' drop-out "
+                  f"{lo:.4g}..{hi:.4g} A over the tolerance band"
+                  + ("" if inside else f": {off:+.3g} % off (more than 10 %); release times use "
+                     "the armature model, not this current"),
+                  severity="warning"))
+    lo_l, hi_l = arm.inductance_open, arm.inductance_closed
+    inside = lo_l * (1 - 1e-9) <= drive.coil.inductance <= hi_l * (1 + 1e-9)
+    add(Check("coil_inductance_armature", bool(inside),
+              f"coil.inductance {drive.coil.inductance * 1e3:.4g} mH vs armature "
+              f"{lo_l * 1e3:.4g}..{hi_l * 1e3:.4g} mH (open..closed); with [armature] the model "
+              "uses the armature values" + ("" if inside else ": check which position coil.inductance was measured at"),
+              severity="warning"))
     return out

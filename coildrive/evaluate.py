@@ -81,16 +81,87 @@ class PointResults:
     release_energy: np.ndarray
     interrupt_current: np.ndarray
     peak_switch_voltage: np.ndarray
+    armature: "ArmatureFigures | None" = None
+
+
+@dataclass(frozen=True)
+class ArmatureFigures:
+    """Moving-armature figures at every point (arrays; A, m, s).
+
+    ``pull_in``/``release``: the integrated runs (see
+    :class:`~coildrive.model.armature.PullInBatch` and
+    :class:`~coildrive.model.armature.ReleaseBatch`). Static force balance:
+    ``start_current`` starts the armature off the open stop, ``stay_current`` keeps it
+    seated (and is where it lets go), ``stroke_current`` beats spring + load over the
+    whole stroke (needed at gap ``stroke_gap``). ``hold_current`` is the hold current
+    that counts for the force (RMS or ripple bottom, see
+    :func:`~coildrive.model.armature.hold_force_current`), ``hold_lift`` the bound on
+    the lift within one PWM period; ``release_from`` the turn-off currents (A) of the
+    release runs.
+    """
+
+    params: object
+    pull_in: object
+    release: object
+    start_current: np.ndarray
+    stay_current: np.ndarray
+    stroke_current: np.ndarray
+    stroke_gap: np.ndarray
+    hold_current: np.ndarray
+    hold_lift: np.ndarray
+    release_from: np.ndarray
+
+
+def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, frequency,
+                      peak_time, reuse: "ArmatureFigures | None" = None) -> ArmatureFigures:
+    import dataclasses
+
+    from .model.armature import (hold_force_current, params_from_loop, peak_current_closed_form,
+                                 pull_in, release)
+    from .model.magnet import stroke_current
+
+    shape = np.shape(lp.v_on)
+    flat = Loop(*(np.ravel(getattr(lp, f)) for f in
+                  ("v_on", "r_on", "r_off", "v_off", "inductance", "r_coil", "supply")))
+    p = params_from_loop(drive.armature, flat, np.ravel(np.broadcast_to(l_factor, shape)))
+    want = np.ravel(np.broadcast_to(peak_time, shape))
+    pin = rel = None
+    if reuse is not None and all(np.array_equal(getattr(p, f), getattr(reuse.params, f))
+                                 for f in p.__dataclass_fields__):
+        # Same points and coil temperatures: the runs do not depend on the peak length.
+        i_peak = peak_current_closed_form(p, reuse.pull_in, want)
+        if i_peak is not None and np.array_equal(np.ravel(ss.i_max), reuse.release_from):
+            pin = dataclasses.replace(reuse.pull_in, peak_end_current=i_peak)
+            rel = reuse.release
+    if pin is None:
+        pin = pull_in(p, peak_time=want)
+        rel = release(p, np.ravel(ss.i_max))
+    through, gap = stroke_current(p.l_closed, p.beta, p.stroke, p.preload, p.rate, p.load)
+    held, lift = hold_force_current(p, np.ravel(ss.i_min), np.ravel(ss.rms), np.ravel(ss.period))
+    return ArmatureFigures(params=p, pull_in=pin, release=rel, start_current=p.start_current,
+                           stay_current=p.stay_current, stroke_current=np.atleast_1d(through),
+                           stroke_gap=np.atleast_1d(gap), hold_current=held, hold_lift=lift,
+                           release_from=np.ravel(ss.i_max).copy())
 
 
 def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
-             peak_time) -> PointResults:
+             peak_time, mechanics: bool = True,
+             reuse: "PointResults | None" = None) -> PointResults:
     """All figures for a setting at the points (see :class:`PointResults`).
 
     Parameters
     ----------
     supply : V; ambient : degC; r_factor, l_factor : tolerance factors (1 = nominal)
     duty : hold duty 0..1; frequency : hold PWM Hz; peak_time : peak phase length in s
+    mechanics : with an ``[armature]``, run the moving-armature model (``False``: only
+        the hold figures are meaningful; for searches over the hold duty)
+    reuse : results of an earlier call at the same points and setting but another peak
+        time; its armature runs are reused where the new peak current is closed form
+
+    With an ``[armature]`` the pull-in time is the time until the armature rests on the
+    seat, the current at the end of the peak follows the moving armature, and the
+    release time is the time until it rests on the open stop again (the zero-current
+    time and the freewheel energy follow it too). Points are 1-D arrays.
     """
     supply, ambient, r_factor, l_factor = np.broadcast_arrays(
         *(np.asarray(x, float) for x in (supply, ambient, r_factor, l_factor)))
@@ -106,10 +177,23 @@ def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
     t_zero = decay_time(0.0, i_off, lp.r_off, lp.v_off, lp.inductance)
     q, s = decay_integrals(t_zero, i_off, lp.r_off, lp.v_off, lp.inductance)
     energy = freewheel_element_energy(drive, lp, q, s)
+    arm = None
+    if drive.armature is not None and mechanics:
+        arm = _armature_figures(drive, lp, l_factor, ss, frequency, peak_time,
+                                None if reuse is None else reuse.armature)
+        shape = np.shape(supply)
+        t_pull = arm.pull_in.seat_time.reshape(shape)
+        i_inf = lp.v_on / lp.r_on
+        i_peak = arm.pull_in.peak_end_current.reshape(shape)
+        i_peak = np.where(np.isfinite(i_peak), i_peak, i_inf)  # not settled: the worst case
+        t_drop = arm.release.open_time.reshape(shape)
+        t_zero = arm.release.zero_time.reshape(shape)
+        energy = freewheel_element_energy(drive, lp, arm.release.charge.reshape(shape),
+                                          arm.release.square.reshape(shape))
     interrupt = np.maximum(i_peak, ss.i_max)
     v_sw = lp.switch_voltage(drive, interrupt)
     return PointResults(supply=supply, ambient=ambient, coil_temp=temp, r_factor=r_factor,
                         l_factor=l_factor, loop=lp, pull_in_time=t_pull, peak_end_current=i_peak,
                         hold=ss, coil_power=power, release_time=t_drop, release_zero_time=t_zero,
                         release_energy=energy, interrupt_current=interrupt,
-                        peak_switch_voltage=v_sw)
+                        peak_switch_voltage=v_sw, armature=arm)

@@ -14,8 +14,12 @@ def plot_design(d: Design) -> bytes:
     matplotlib.use("Agg")
     from matplotlib.figure import Figure
 
-    fig = Figure(figsize=(9, 5), dpi=110)
-    ax = fig.add_subplot(1, 1, 1)
+    moving = d.armature is not None
+    fig = Figure(figsize=(9, 7.5 if moving else 5), dpi=110)
+    if moving:
+        ax, ax_x = fig.subplots(2, 1, sharex=True, gridspec_kw={"height_ratios": [3, 2]})
+    else:
+        ax = fig.add_subplot(1, 1, 1)
     colours = {"nominal": "tab:blue", "worst": "tab:red"}
     for key, w in d.waveforms.items():
         ax.plot(w.time * 1e3, w.current, lw=0.9, color=colours.get(key), label=w.label)
@@ -30,7 +34,10 @@ def plot_design(d: Design) -> bytes:
     ax.text(0, d.hold.current_a, " hold", va="bottom", fontsize=8)
     ax.axhline(d.release.dropout_current_a, color="k", ls="-.", lw=0.8)
     ax.text(0, d.release.dropout_current_a, " drop-out", va="bottom", fontsize=8)
-    ax.set_xlabel("time [ms]")
+    if moving:
+        _armature_panel(d, ax, ax_x, colours)
+    else:
+        ax.set_xlabel("time [ms]")
     ax.set_ylabel("coil current [A]")
     ax.set_title(f"{d.drive.name} on {d.drive.board.name}: duty {d.hold.duty:.3f} at "
                  f"{d.hold.frequency_hz / 1e3:.4g} kHz, peak {d.pull_in.peak_time_s * 1e3:.3g} ms")
@@ -40,3 +47,26 @@ def plot_design(d: Design) -> bytes:
     buf = io.BytesIO()
     fig.savefig(buf, format="png")
     return buf.getvalue()
+
+
+def _armature_panel(d: Design, ax, ax_x, colours: dict) -> None:
+    """Armature position under the current; the dip and the seat/release moments marked."""
+    for key, w in d.waveforms.items():
+        c = colours.get(key)
+        ax_x.plot(w.time * 1e3, w.position * 1e3, lw=0.9, color=c, label=w.label)
+        ev = w.events
+        if "impact" in ev:
+            ax.plot(ev["impact"] * 1e3, ev["dip_current"], "v", color=c, ms=7,
+                    label=f"dip {ev['dip_current']:.3g} A at {ev['impact'] * 1e3:.3g} ms ({key})")
+        for name, style in (("seat", "--"), ("open", ":")):
+            if name in ev:
+                for axis in (ax, ax_x):
+                    axis.axvline(ev[name] * 1e3, color=c, ls=style, lw=0.8)
+                ax_x.annotate(f"{'seated' if name == 'seat' else 'open'} {ev[name] * 1e3:.3g} ms",
+                              (ev[name] * 1e3, d.armature.stroke_m * 1e3 * (0.5 if name == "seat" else 0.8)),
+                              fontsize=7, color=c, rotation=90, va="center", ha="right")
+    ax_x.set_ylabel("gap x [mm] (open = stroke)")
+    ax_x.set_xlabel("time [ms]")
+    ax_x.set_ylim(-0.05 * d.armature.stroke_m * 1e3, 1.1 * d.armature.stroke_m * 1e3)
+    ax_x.grid(alpha=0.3)
+    ax_x.legend(fontsize=7, loc="center right")

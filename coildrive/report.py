@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from rich.console import Console
+from rich.markup import escape
 from rich.table import Table
 
 from .design import Design
@@ -40,9 +41,40 @@ def summary_table(d: Design) -> Table:
         ("ADC thresholds", f"{a.pull_in_code}/{a.hold_code}/{a.over_current_code}/{a.open_load_code}",
          "pull-in / hold / over-current / open-load codes"),
     ]
+    if d.armature is not None:
+        rows = _armature_rows(d, rows)
     for row in rows:
-        t.add_row(*row)
+        t.add_row(*(escape(c) for c in row))
     return t
+
+
+def _armature_rows(d: Design, rows: list) -> list:
+    """With an ``[armature]``: pull-in and release are armature moments, plus the
+    mechanics' currents and margins."""
+    a, p, r = d.armature, d.pull_in, d.release
+    out = []
+    for row in rows:
+        if row[0].startswith("pull-in time"):
+            out.append(("armature seated (worst)", _ms(a.seat_time_s),
+                        f"at {a.seat_corner}; earliest {_ms(a.seat_time_min_s)}"))
+            out.append(("current dip (seat moment)", f"{a.dip_current_a:.4g} A at {_ms(a.dip_time_s)}",
+                        f"worst corner; lowest dip {a.dip_current_min_a:.4g} A"))
+        elif row[0].startswith("release time"):
+            out.append(("armature open after off", _ms(r.time_s),
+                        f"at {r.worst_corner} via {r.freewheel}; current zero after {_ms(r.zero_time_s)}"))
+        else:
+            out.append(row)
+        if row[0].startswith("peak phase"):
+            derived = f" (derived: {', '.join(a.derived)})" if a.derived else ""
+            out.append(("mechanics need", f"{a.start_current_a:.4g} / {a.stroke_current_a:.4g} / "
+                        f"{a.stay_current_a:.4g} A",
+                        "start (open gap) / whole stroke / stay seated (closed gap), lowest L"))
+            out.append(("current margins", f"x{a.pull_in_current_margin:.3g} / x{a.hold_current_margin:.3g}",
+                        f"pull-in {p.current_a:.4g} A / hold {d.hold.current_a:.4g} A over the need{derived}"))
+        if row[0].startswith("hold mean current"):
+            out.append(("hold force margin", f"x{a.hold_force_margin:.3g}",
+                        f"at {a.hold_force_corner}; x{a.hottest_low_supply_margin:.3g} hottest at lowest supply"))
+    return out
 
 
 def checks_table(d: Design) -> Table:
@@ -57,7 +89,7 @@ def checks_table(d: Design) -> Table:
             mark = "[bold red]FAIL[/bold red]"
         else:
             mark = "[yellow]warn[/yellow]"
-        t.add_row(c.name, mark, c.detail)
+        t.add_row(c.name, mark, escape(c.detail))
     return t
 
 
@@ -85,12 +117,15 @@ def print_design(d: Design, console: Console | None = None) -> None:
     """Print the summary, checks, Monte Carlo (if any) and cautions."""
     console = console or Console()
     console.print(summary_table(d))
+    if "current_mode" in d.extra:
+        from .current_hold import current_mode_table
+        console.print(current_mode_table(d))
     console.print(checks_table(d))
     if d.monte_carlo is not None:
         console.print(monte_carlo_table(d.monte_carlo))
     console.print("[bold]Cautions[/bold]")
     for c in d.cautions:
-        console.print(f"  ! {c}")
+        console.print(f"  ! {escape(c)}")
     if d.ok:
         console.print("[green]design ok[/green]")
     else:

@@ -8,7 +8,7 @@ from __future__ import annotations
 import typer
 
 from .. import __version__
-from . import design_cmd, stream_cmd
+from . import bench_cmd, design_cmd, stream_cmd, tune_cmd
 from .common import state
 
 app = typer.Typer(
@@ -37,7 +37,10 @@ app.command("demo")(design_cmd.demo_command)
 app.command("design")(design_cmd.design_command)
 app.command("simulate")(design_cmd.simulate_command)
 app.command("boards")(design_cmd.boards_command)
+app.command("tune")(tune_cmd.tune_command)
 app.command("firmware-stream")(stream_cmd.firmware_stream)
+app.command("check")(bench_cmd.check_command)
+app.command("fit")(bench_cmd.fit_command)
 
 
 def main() -> None:

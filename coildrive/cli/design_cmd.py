@@ -108,12 +108,27 @@ def simulate_command(
     if d.pull_in.peak_ticks == 0:
         raise InputError(str(drive), "pull_in.current", "is never reached at the worst corner, "
                          "so the design has no peak time to simulate")
-    w = actuation(d.drive, v, t, d.pull_in.peak_time_s, d.hold.duty, d.hold.frequency_hz, h,
-                  r_factor, l_factor, points)
+    if "current_mode" in d.extra:
+        from ..current_hold import current_mode_actuation
+        w = current_mode_actuation(d.drive, d.extra["current_thresholds"], v, t, d.pull_in.peak_time_s,
+                                   h, r_factor, l_factor, points)
+    else:
+        w = actuation(d.drive, v, t, d.pull_in.peak_time_s, d.hold.duty, d.hold.frequency_hz, h,
+                      r_factor, l_factor, points)
     write_atomic(csv, w.to_csv())
     status(f"wrote {csv}: {len(w.time)} samples, peak {d.pull_in.peak_time_s * 1e3:.4g} ms, "
            f"hold duty {d.hold.duty:.4f} at {d.hold.frequency_hz:.6g} Hz, off at "
            f"{w.events['off'] * 1e3:.4g} ms, zero at {w.events['zero'] * 1e3:.4g} ms")
+    if w.position is not None:
+        ev = w.events
+
+        def when(name: str) -> str:
+            return f"{ev[name] * 1e3:.4g} ms" if name in ev else "never"
+        dip = f", current dip {ev['dip_current']:.4g} A" if "dip_current" in ev else ""
+        status(f"armature: moves at {when('move')}, seated at {when('seat')}{dip}, lets go at "
+               f"{when('unlatch')}, open at {when('open')} (columns position_m, velocity_m_s)")
+        if "seat" not in ev:
+            status("armature: not seated by the end of the peak at this point")
 
 
 @user_errors

@@ -83,7 +83,9 @@ class HeaderView:
                      f"{d.pull_in.time_s * 1e3:.4g} ms x {d.pull_in.margin:g}, +1 tick)"),
             Constant(f"{m}_RELEASE_LOCKOUT_TICKS", d.release.lockout_ticks,
                      f"wait after turn-off before re-actuating: current is zero after "
-                     f"{d.release.zero_time_s * 1e3:.4g} ms"),
+                     f"{d.release.zero_time_s * 1e3:.4g} ms"
+                     + ("" if d.armature is None else
+                        f", armature open after {d.release.time_s * 1e3:.4g} ms")),
             Constant(f"{m}_ADC_BITS", board.adc.bits, "ADC resolution"),
             Constant(f"{m}_ADC_MAX_CODE", 2**board.adc.bits - 1, "ADC full-scale code"),
             Constant(f"{m}_ADC_PULL_IN_CODE", a.pull_in_code, f"pull-in current {d.pull_in.current_a:.4g} A"),
@@ -96,10 +98,37 @@ class HeaderView:
             Constant(f"{m}_SUPPLY_MAX_CODE", a.supply_max_code, f"supply sense at {d.drive.supply.max:.4g} V"),
             Constant(f"{m}_DUTY_TABLE_LEN", len(d.duty_table.adc_codes), "entries in the duty table"),
         ]
+        if d.armature is not None:
+            self.constants += _armature_constants(d, m)
         self.table = list(zip(d.duty_table.adc_codes, d.duty_table.compare_ticks, d.duty_table.supply_v))
+        from ..current_hold import header_checks, header_constants, header_summary, relabel_fallback
+        self.constants = relabel_fallback(d, m, self.constants)
+        self.current_constants = header_constants(d, m)
+        self.current_checks = header_checks(d, m)
+        self.current_summary = header_summary(d)
 
     def value(self, suffix: str) -> int:
         return next(c.value for c in self.constants if c.name == f"{self.macro}_{suffix}")
+
+
+def _armature_constants(d: Design, m: str) -> list[Constant]:
+    """With an ``[armature]``: the window in which the firmware should see the current dip
+    (the seat moment) and the time until the armature is back open, in scheduler ticks."""
+    import math
+
+    a = d.armature
+    rate = d.drive.board.tick.rate
+    if not (math.isfinite(a.seat_time_min_s) and math.isfinite(a.seat_time_s)
+            and math.isfinite(a.release_open_time_s)):
+        return []
+    return [
+        Constant(f"{m}_SEAT_EARLIEST_TICKS", math.floor(a.seat_time_min_s * rate + 1e-9),
+                 f"earliest armature seat (current dip) {a.seat_time_min_s * 1e3:.4g} ms after on"),
+        Constant(f"{m}_SEAT_LATEST_TICKS", math.ceil(a.seat_time_s * rate - 1e-9),
+                 f"latest armature seat {a.seat_time_s * 1e3:.4g} ms (worst corner)"),
+        Constant(f"{m}_RELEASE_OPEN_TICKS", math.ceil(a.release_open_time_s * rate - 1e-9),
+                 f"armature back open {a.release_open_time_s * 1e3:.4g} ms after off (worst corner)"),
+    ]
 
 
 def generate_header(design: Design, prefix: str = "COIL") -> str:

@@ -77,7 +77,9 @@ def loop(drive: Drive, supply, coil_temp, r_factor=1.0, l_factor=1.0) -> Loop:
     """Loop parameters for supply V, coil temperature degC and tolerance factors.
 
     ``r_factor``/``l_factor`` multiply the nominal coil resistance/inductance
-    (1.07 = +7 % tolerance corner).
+    (1.07 = +7 % tolerance corner). ``inductance`` is ``coil.inductance``, or with an
+    ``[armature]`` its seated value ``inductance_closed`` (the armature model itself
+    uses the inductance at every gap, see :mod:`coildrive.model.armature`).
     """
     coil = drive.coil
     sense = drive.board.sense
@@ -90,7 +92,10 @@ def loop(drive: Drive, supply, coil_temp, r_factor=1.0, l_factor=1.0) -> Loop:
         v_off = fw.clamp_voltage - supply
     else:
         v_off = np.full_like(supply, fw.diode_drop + fw.zener_voltage)
-    inductance = coil.inductance * np.asarray(l_factor, float)
+    # With a moving armature the switched segments that use Loop.inductance (the PWM hold,
+    # the release until the armature lets go) all have it seated: the closed inductance.
+    base = coil.inductance if drive.armature is None else drive.armature.inductance_closed
+    inductance = base * np.asarray(l_factor, float)
     arrays = np.broadcast_arrays(supply, r_on, r_off, v_off, inductance, r_coil)
     # read-only broadcast views: no copies of scalars spread over many points
     supply, r_on, r_off, v_off, inductance, r_coil = arrays

@@ -39,8 +39,8 @@ def fit_gap(inductance_open, inductance_closed, stroke):
     -------
     l_closed : H; beta : 1/m (``1/g0``; 0 when the inductances are equal)
 
-    >>> fit_gap(0.02, 0.06, 0.004)
-    (0.06, 500.0)
+    >>> fit_gap(0.25, 0.75, 0.5)  # H, H, m: L(x) = 0.75 / (1 + 4 x), g0 = 0.25 m
+    (0.75, 4.0)
     """
     lo = np.asarray(inductance_open, float)
     lc = np.asarray(inductance_closed, float)

@@ -82,12 +82,13 @@ def pwm_steady_state(duty, frequency, v_on, r_on, r_off, v_off, inductance) -> P
                           square_on=s_on, charge_off=q_off, square_off=s_off)
 
 
-def duty_for_mean(target, frequency, v_on, r_on, r_off, v_off, inductance, iterations: int = 44):
-    """Smallest duty whose steady-state mean current reaches ``target`` A, per point.
+def duty_for_mean_bisect(target, frequency, v_on, r_on, r_off, v_off, inductance,
+                         iterations: int = 44):
+    """Reference for :func:`duty_for_mean`: a plain vectorised bisection of the duty.
 
-    The mean current rises monotonically with duty, so a vectorised bisection finds it
-    (44 halvings: below one part in 10^13 of the period). Returns ``nan`` where even
-    100 % duty falls short.
+    The mean current rises monotonically with duty; 44 halvings bring the bracket below
+    one part in 10^13 of the period. Returns the upper end of the bracket, ``nan`` where
+    even 100 % duty falls short. Kept for the tests and as the slow, obviously right path.
     """
     shape = np.broadcast(target, frequency, v_on, r_on, r_off, v_off, inductance).shape
     lo = np.zeros(shape)
@@ -99,3 +100,103 @@ def duty_for_mean(target, frequency, v_on, r_on, r_off, v_off, inductance, itera
         hi = np.where(ok, mid, hi)
         lo = np.where(ok, lo, mid)
     return np.where(full >= target, hi, np.nan)
+
+
+#: Duty tolerance of :func:`duty_for_mean` (fraction of the period).
+DUTY_TOL = 1e-13
+
+
+def duty_for_mean(target, frequency, v_on, r_on, r_off, v_off, inductance, iterations: int = 60,
+                  start=None):
+    """Smallest duty whose steady-state mean current reaches ``target`` A, per point.
+
+    The mean current rises monotonically with duty. Each point starts from the
+    continuous-conduction estimate of volt-second balance,
+    ``D = (R_off I + V_off) / (V + V_off - (R_on - R_off) I)`` (exact when the two loop
+    resistances are equal), then takes secant steps kept inside a bracket
+    ``mean(lo) < target <= mean(hi)``; a step that would leave the bracket lands just
+    inside the end it overshot (by the overshoot, at most half the bracket). A point is
+    done when its bracket is narrower than :data:`DUTY_TOL`, or when a secant step
+    is that small and the duty just above it is checked to reach the target. Returns the
+    upper end (the duty reaches ``target``), within ``DUTY_TOL`` of the exact root --
+    the same as the 44-step bisection :func:`duty_for_mean_bisect` to 1e-12, in about
+    five evaluations instead of 44. ``nan`` where even 100 % duty falls short;
+    ``iterations`` bounds the steps (the rest is finished by bisection); ``start``
+    (optional, broadcast like the others) replaces the first estimate, e.g. the duty of a
+    nearby point.
+    """
+    arrays = np.broadcast_arrays(*(np.asarray(x, float) for x in
+                                   (target, frequency, v_on, r_on, r_off, v_off, inductance)))
+    shape = arrays[0].shape
+    tgt, f, v, ron, roff, voff, ind = (np.array(a, dtype=float).ravel() for a in arrays)
+    if start is not None:
+        start = np.array(np.broadcast_to(np.asarray(start, float), shape), dtype=float).ravel()
+    out = np.full(tgt.size, np.nan)
+    full = pwm_steady_state(1.0, f, v, ron, roff, voff, ind).mean
+    reach = full >= tgt
+    out[reach & (tgt <= 0)] = 0.0
+    act = np.flatnonzero(reach & (tgt > 0))
+    if act.size == 0:
+        return out.reshape(shape)
+
+    def mean_minus(x, k):
+        return pwm_steady_state(x, f[k], v[k], ron[k], roff[k], voff[k], ind[k]).mean - tgt[k]
+
+    k = act
+    lo = np.zeros(k.size)
+    hi = np.ones(k.size)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        x = (roff[k] * tgt[k] + voff[k]) / (v[k] + voff[k] - (ron[k] - roff[k]) * tgt[k])
+        slope = (v[k] + voff[k]) / (0.5 * (ron[k] + roff[k]))  # d mean / d duty in CCM
+    if start is not None:
+        x = np.where(np.isfinite(start[k]), start[k], x)
+    x = np.where((x > lo) & (x < hi), x, 0.5)
+    xp = np.full(k.size, np.nan)  # previous point (none yet: the first step uses ``slope``)
+    fp = np.full(k.size, np.nan)
+    for _ in range(iterations):
+        fx = mean_minus(x, k)
+        above = fx >= 0
+        hi = np.where(above, x, hi)
+        lo = np.where(above, lo, x)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            step = np.where(np.isfinite(xp), fx * (x - xp) / (fx - fp), fx / slope)
+        nxt = x - step
+        exact = (hi - lo < DUTY_TOL) | (fx == 0)
+        # a step below the tolerance: the root is within it of ``nxt`` (which may round
+        # onto ``x`` itself) -- checked below
+        small = ~exact & (np.abs(step) < DUTY_TOL)
+        res = np.where(exact, hi, np.minimum(nxt + DUTY_TOL, hi))
+        # A step that leaves the bracket lands just inside it, by as far as it overshot
+        # (at least twice the tolerance, at most half the bracket): a secant from far
+        # points often overshoots a root that lies right next to an end.
+        half = 0.5 * (hi - lo)
+        below = np.minimum(np.maximum(lo - nxt, 2 * DUTY_TOL), half)
+        above_hi = np.minimum(np.maximum(nxt - hi, 2 * DUTY_TOL), half)
+        nxt = np.where(nxt <= lo, lo + below, np.where(nxt >= hi, hi - above_hi, nxt))
+        nxt = np.where(np.isfinite(nxt), nxt, lo + half)
+        done = exact | small
+        if np.any(small):
+            # the root lies within |step| of nxt: confirm that the duty just above reaches
+            # the target; if not, it is a valid lower end and the point carries on
+            ci = np.flatnonzero(small)
+            ok = mean_minus(res[ci], k[ci]) >= 0
+            miss = ci[~ok]
+            done[miss] = False
+            lo[miss] = res[miss]
+            nxt[miss] = 0.5 * (lo[miss] + hi[miss])
+        out[k[done]] = res[done]
+        keep = ~done
+        if not np.any(keep):
+            return out.reshape(shape)
+        k, lo, hi = k[keep], lo[keep], hi[keep]
+        xp, fp, x, slope = x[keep], fx[keep], nxt[keep], slope[keep]
+    # Points still open after ``iterations`` steps: finish by bisection of their bracket.
+    while k.size:
+        mid = 0.5 * (lo + hi)
+        ok = mean_minus(mid, k) >= 0
+        hi = np.where(ok, mid, hi)
+        lo = np.where(ok, lo, mid)
+        fin = hi - lo < DUTY_TOL
+        out[k[fin]] = hi[fin]
+        k, lo, hi = k[~fin], lo[~fin], hi[~fin]
+    return out.reshape(shape)

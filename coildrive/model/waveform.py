@@ -21,11 +21,15 @@ from .rl import decay_current, decay_time, rise_current
 
 @dataclass(frozen=True)
 class Waveform:
-    """A simulated actuation. Arrays: s, A, 0/1, V, A.
+    """A simulated actuation. Arrays: s, A, 0/1, V, A (and m, m/s with an armature).
 
     ``sense_current`` is what the current-sense ADC channel sees: the coil current with
     the resistor in the coil path, zero while the switch is off with it under the switch.
-    ``events`` maps ``on``, ``hold``, ``off`` and ``zero`` to their times in s.
+    ``events`` maps ``on``, ``hold``, ``off`` and ``zero`` to their times in s; with a
+    moving armature also ``move``, ``impact`` (the current dip), ``seat``, ``unlatch``
+    and ``open`` (see :mod:`coildrive.model.armature_sim`), and ``dip_current`` in A.
+    ``position`` (gap, m: stroke when open, 0 seated) and ``velocity`` (m/s) are
+    ``None`` without an armature.
     """
 
     time: np.ndarray
@@ -35,14 +39,22 @@ class Waveform:
     sense_current: np.ndarray
     events: dict[str, float] = field(default_factory=dict)
     label: str = ""
+    position: np.ndarray | None = None
+    velocity: np.ndarray | None = None
 
     def to_csv(self) -> str:
-        """CSV text with header ``time_s,current_a,switch_on,switch_voltage_v,sense_current_a``."""
+        """CSV text with header ``time_s,current_a,switch_on,switch_voltage_v,sense_current_a``
+        (then ``position_m,velocity_m_s`` with an armature)."""
         buf = io.StringIO()
-        buf.write("time_s,current_a,switch_on,switch_voltage_v,sense_current_a\n")
-        data = np.column_stack([self.time, self.current, self.switch_on, self.switch_voltage,
-                                self.sense_current])
-        np.savetxt(buf, data, delimiter=",", fmt=["%.9e", "%.9e", "%d", "%.6e", "%.9e"])
+        cols = [self.time, self.current, self.switch_on, self.switch_voltage, self.sense_current]
+        head = "time_s,current_a,switch_on,switch_voltage_v,sense_current_a"
+        fmt = ["%.9e", "%.9e", "%d", "%.6e", "%.9e"]
+        if self.position is not None:
+            cols += [self.position, self.velocity]
+            head += ",position_m,velocity_m_s"
+            fmt += ["%.9e", "%.9e"]
+        buf.write(head + "\n")
+        np.savetxt(buf, np.column_stack(cols), delimiter=",", fmt=fmt)
         return buf.getvalue()
 
 
@@ -58,6 +70,9 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
     periods, at least one); r_factor, l_factor : tolerance factors; points : samples per
     PWM segment (the peak and the final decay get 40x as many).
     """
+    if drive.armature is not None:
+        return armature_actuation(drive, supply, coil_temp, peak_time, duty, frequency,
+                                  hold_time, r_factor, l_factor, points, label)
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
     v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
     big = 40 * points
@@ -71,6 +86,134 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
     i0 = float(cs[-1][-1])
 
     # Hold: per-period start currents by scalar recurrence, then vectorised sampling.
+    t_hold, i_hold, on_hold, t_offedge, i_off, _ = hold_samples(
+        peak_time, i0, v, r_on, r_off, v_off, ind, duty, frequency, hold_time, points)
+    ts.append(t_hold)
+    cs.append(i_hold)
+    ons.append(on_hold)
+
+    # Release: decay to zero.
+    tz = float(decay_time(0.0, i_off, r_off, v_off, ind))
+    td = np.linspace(0.0, tz, big + 1)[1:]
+    ts.append(t_offedge + td)
+    cs.append(decay_current(td, i_off, r_off, v_off, ind))
+    ons.append(np.zeros_like(td))
+
+    time = np.concatenate(ts)
+    current = np.concatenate(cs)
+    on = np.concatenate(ons).astype(np.int8)
+    v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
+    events = {"on": 0.0, "hold": peak_time, "off": t_offedge, "zero": t_offedge + tz}
+    return Waveform(time, current, on, v_sw, sense, events, label)
+
+
+def _switch_and_sense(drive: Drive, lp, supply: float, current, on):
+    """Switch voltage V and sensed current A for samples of coil current and switch state."""
+    fw_v = lp.switch_voltage(drive, current)
+    r_sw = drive.switch.on_resistance
+    off_blocked = float(supply)
+    v_sw = np.where(on == 1, current * r_sw, np.where(current > 0, fw_v, off_blocked))
+    sense = current if drive.board.sense.position == "coil" else current * on
+    return v_sw, sense
+
+
+def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float,
+                       duty: float, frequency: float, hold_time: float, r_factor: float = 1.0,
+                       l_factor: float = 1.0, points: int = 8, label: str = "",
+                       method: str = "numpy") -> Waveform:
+    """:func:`actuation` with the moving armature (see :mod:`coildrive.model.armature_sim`).
+
+    The same switch schedule -- peak from t = 0, whole PWM periods of hold, off -- drives
+    the armature model; after the turn-off the run goes on until the armature rests on
+    the open stop and the current is zero. Every PWM edge is a sample. The hold follows
+    the armature too: if the current falls below the stay current the armature lifts.
+    ``method``: ``"numpy"`` or a scipy ``solve_ivp`` method (the reference path).
+    """
+    from .armature import params_from_loop, _time_bound
+    from .armature_sim import simulate
+
+    lp = loop(drive, supply, coil_temp, r_factor, l_factor)
+    p = params_from_loop(drive.armature, lp, l_factor)
+    big = 40 * points
+    period = 1.0 / frequency
+    n = max(1, int(round(hold_time * frequency)))
+    t_on = duty * period
+    schedule = []
+    if peak_time > 0:
+        schedule.append((peak_time, True, big))
+    for k in range(n):
+        start = peak_time + k * period
+        if t_on > 0:
+            schedule.append((start + t_on, True, points))
+        if k < n - 1 and t_on < period:
+            schedule.append((start + period, False, points))
+    t_off = peak_time + (n - 1) * period + t_on
+    i_max = float(p.v_on[0] / p.r_on[0])
+    t_un = float(decay_time(min(float(p.stay_current[0]), i_max), i_max, p.r_off[0], p.v_off[0],
+                            p.l_closed[0]))
+    bound = float(_time_bound(t_un, p.l_closed[0], p.r_off[0], p.mass[0], p.stroke[0],
+                              p.damping[0], p.preload[0] + p.load[0]))
+    schedule.append((t_off + bound, False, big))
+    released = (lambda r: r.t >= t_off and r.state == "open" and not r.live)
+    tr = None
+    if peak_time > 0:
+        # Fast path: seated at the end of the peak and the hold current never below the
+        # stay current -- then the hold is the closed-form PWM of the seated coil.
+        head = simulate(p, schedule[:1], method=method, points=points)
+        i0 = float(head.current[-1])
+        if head.state == "seated":
+            v, r_on, r_off, v_off = (float(a[0]) for a in (p.v_on, p.r_on, p.r_off, p.v_off))
+            th, ih, oh, t_cut, i_cut, starts = hold_samples(
+                peak_time, i0, v, r_on, r_off, v_off, float(p.l_closed[0]), duty, frequency,
+                hold_time, points)
+            if float(np.min(starts)) >= float(p.stay_current[0]):
+                tail = simulate(p, [(t_cut + bound, False, big)], state="seated",
+                                flux=float(p.l_closed[0]) * i_cut, method=method, points=points,
+                                stop=lambda r: r.state == "open" and not r.live, t0=t_cut)
+                zeros = np.zeros_like(th)
+                tr = head
+                tr.time = np.concatenate([head.time, th, tail.time[1:]])
+                tr.current = np.concatenate([head.current, ih, tail.current[1:]])
+                tr.switch_on = np.concatenate([head.switch_on, oh.astype(np.int8),
+                                               tail.switch_on[1:]])
+                tr.position = np.concatenate([head.position, zeros, tail.position[1:]])
+                tr.velocity = np.concatenate([head.velocity, zeros, tail.velocity[1:]])
+                tr.log = head.log + tail.log
+                tr.events = {**tail.events, **head.events}
+    if tr is None:
+        tr = simulate(p, schedule, method=method, points=points, stop=released)
+    current = tr.current
+    on = tr.switch_on
+    v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
+    ev = tr.events
+    events = {"on": 0.0, "hold": peak_time, "off": t_off}
+    after = [t for t, name in tr.log if name == "zero" and t >= t_off]
+    events["zero"] = after[0] if after else float(tr.time[-1])
+    for name in ("move", "impact", "dip_current"):
+        if name in ev:
+            events[name] = float(ev[name])
+    seats = [t for t, name in tr.log if name == "seat"]
+    if seats:
+        events["seat"] = seats[0]
+    for name in ("unlatch", "open"):
+        times = [t for t, nm in tr.log if nm == name and t >= t_off]
+        if times:
+            events[name] = times[-1] if name == "open" else times[0]
+    return Waveform(tr.time, current, on, v_sw, sense, events, label, position=tr.position,
+                    velocity=tr.velocity)
+
+
+def hold_samples(t_start: float, i0: float, v: float, r_on: float, r_off: float, v_off: float,
+                 ind: float, duty: float, frequency: float, hold_time: float, points: int):
+    """Closed-form samples of a PWM hold of constant inductance ``ind`` H from ``t_start``
+    s and ``i0`` A: whole periods (at least one), the last one cut at the end of its
+    on-time (the turn-off, at the top of the ripple).
+
+    Returns ``(time, current, switch_on, t_off, i_off, starts)``: the samples after
+    ``t_start`` (s, A, 0/1), the turn-off time s and current A, and the current at the
+    start of every period (A; its smallest value is the lowest current of the hold).
+    """
+    peak_time = t_start
     period = 1.0 / frequency
     n = max(1, int(round(hold_time * frequency)))
     t_on, t_off = duty * period, (1.0 - duty) * period
@@ -105,26 +248,6 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
     # The last period ends at its on-edge: drop its off segment.
     keep = np.ones_like(period_t, dtype=bool)
     keep[-1, on_t.shape[1]:] = False
-    ts.append(period_t[keep][1:])
-    cs.append(period_i[keep][1:])
-    ons.append(period_on[keep][1:])
     t_offedge = peak_time + (n - 1) * period + t_on
-    i_off = float(tops[-1])
-
-    # Release: decay to zero.
-    tz = float(decay_time(0.0, i_off, r_off, v_off, ind))
-    td = np.linspace(0.0, tz, big + 1)[1:]
-    ts.append(t_offedge + td)
-    cs.append(decay_current(td, i_off, r_off, v_off, ind))
-    ons.append(np.zeros_like(td))
-
-    time = np.concatenate(ts)
-    current = np.concatenate(cs)
-    on = np.concatenate(ons).astype(np.int8)
-    fw_v = lp.switch_voltage(drive, current)
-    r_sw = drive.switch.on_resistance
-    off_blocked = float(supply)
-    v_sw = np.where(on == 1, current * r_sw, np.where(current > 0, fw_v, off_blocked))
-    sense = current if drive.board.sense.position == "coil" else current * on
-    events = {"on": 0.0, "hold": peak_time, "off": t_offedge, "zero": t_offedge + tz}
-    return Waveform(time, current, on, v_sw, sense, events, label)
+    return (period_t[keep][1:], period_i[keep][1:], period_on[keep][1:], t_offedge,
+            float(tops[-1]), starts)

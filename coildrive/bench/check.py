@@ -1,0 +1,389 @@
+"""Check a capture against its design: measured figures against the model's, pass or fail.
+
+The prediction is made at the capture's operating point -- bus voltage and coil
+temperature as the command line gives them, else as the capture says (header metadata,
+or the device's SUPPLY events read through the board's supply divider), else the
+drive's nominal supply and the coil's reference temperature clipped into the ambient
+range -- with the design's peak time, hold duty and hold frequency. The coil is taken
+to be at that temperature throughout (a bench actuation, not the design's settled hot
+coil). Closed-form figures come from :func:`coildrive.evaluate.evaluate`; with an
+``[armature]`` the times to a current come from the model waveform
+(:func:`coildrive.model.waveform.actuation`) and the seat from the armature model.
+
+Each figure passes when every actuation's value lies inside ``predicted x (1 +/- tol)``
+widened to at least two resolution steps of the measurement (two sample periods, or
+the time one ADC code takes, for times; two codes for currents). Default tolerances
+(:class:`Tolerances`) are our defaults, in line with common practice for an
+end-of-line test of a coil driver; every one can be overridden.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..config import Board, Drive
+from ..corners import nominal_point
+from ..errors import InputError
+from .analysis import Analysis, analyse
+from .capture_file import Capture
+from .messages import EventKind
+
+PASS, FAIL, NA, INFO = "pass", "FAIL", "n/a", "info"
+
+
+@dataclass(frozen=True)
+class Tolerances:
+    """Relative tolerances on each checked figure (0.15 = +/-15 %). Our defaults
+    (common practice for end-of-line tests of coil drivers; not from a standard):
+
+    * ``pull_in_time`` 15 %: covers the coil's R and L tolerance at one temperature;
+    * ``seated_time`` 20 %: mechanics (friction, spring) vary more than the coil;
+    * ``peak_duration`` 5 %: firmware timing, set by the scheduler tick;
+    * ``hold_mean`` 10 %: the hold current the armature needs has margin in it;
+    * ``hold_ripple`` 30 %: ripple goes as 1/L, and L varies most;
+    * ``release_time`` 20 %: the freewheel path's parts vary more than the coil.
+    """
+
+    pull_in_time: float = 0.15
+    seated_time: float = 0.20
+    peak_duration: float = 0.05
+    hold_mean: float = 0.10
+    hold_ripple: float = 0.30
+    release_time: float = 0.20
+
+    def __post_init__(self) -> None:
+        for f in dataclasses.fields(self):
+            value = getattr(self, f.name)
+            if not (isinstance(value, (int, float)) and math.isfinite(value) and 0 <= value < 10):
+                raise InputError(f"--tol-{f.name.replace('_', '-')}", "",
+                                 f"{value!r} is not a fraction 0..10 (0.15 means 15 %)")
+
+
+@dataclass(frozen=True)
+class OperatingPoint:
+    """Bus voltage V and coil temperature degC of the prediction, and where each came from."""
+
+    supply_v: float
+    coil_temp_c: float
+    supply_from: str
+    coil_temp_from: str
+
+
+@dataclass(frozen=True)
+class CheckItem:
+    """One row of the check. ``measured`` is the actuation value farthest from the
+    prediction; ``low``..``high`` the accepted band; ``status`` pass / FAIL / n/a / info."""
+
+    name: str
+    status: str
+    measured: float | None
+    predicted: float | None
+    low: float | None
+    high: float | None
+    unit: str
+    detail: str
+    values: tuple[float | None, ...] = ()
+
+    @property
+    def failed(self) -> bool:
+        return self.status == FAIL
+
+
+@dataclass(frozen=True)
+class CheckReport:
+    """The result of :func:`check_capture`: rows, the analysis and the prediction.
+
+    ``prediction`` maps figure names to predicted values (SI); ``waveform`` is the model
+    actuation at the operating point (for the plot: no output recomputes physics).
+    """
+
+    items: tuple[CheckItem, ...]
+    analysis: Analysis
+    point: OperatingPoint
+    tolerances: Tolerances
+    prediction: dict
+    drive_name: str
+    board_name: str
+    capture_source: str
+    notes: tuple[str, ...] = ()
+    cautions: tuple[str, ...] = ()
+    waveform: object = field(default=None, repr=False)
+
+    @property
+    def ok(self) -> bool:
+        """True when no row failed."""
+        return not any(i.failed for i in self.items)
+
+    @property
+    def failed(self) -> list[CheckItem]:
+        return [i for i in self.items if i.failed]
+
+    def to_dict(self) -> dict:
+        """Plain JSON-ready dict (the ``check --json`` document)."""
+        def clean(v):
+            if isinstance(v, float):
+                return v if math.isfinite(v) else None
+            if isinstance(v, (np.floating, np.integer)):
+                return clean(v.item())
+            if isinstance(v, dict):
+                return {k: clean(x) for k, x in v.items()}
+            if isinstance(v, (list, tuple)):
+                return [clean(x) for x in v]
+            return v
+        return clean({
+            "ok": self.ok, "capture": self.capture_source, "drive": self.drive_name,
+            "board": self.board_name, "operating_point": dataclasses.asdict(self.point),
+            "tolerances": dataclasses.asdict(self.tolerances), "prediction": dict(self.prediction),
+            "items": [dataclasses.asdict(i) for i in self.items],
+            "analysis": self.analysis.to_dict(), "notes": list(self.notes),
+            "cautions": list(self.cautions),
+        })
+
+
+BENCH_CAUTIONS = (
+    "Bench work on coil drivers: turning a coil off makes a voltage spike far above the supply "
+    "-- keep the freewheel path or clamp fitted, and never unplug a coil or a probe while current flows.",
+    "A coil left on at peak current heats fast: limit the peak phase in the firmware, and let the "
+    "coil cool before measuring its resistance again.",
+    "Measure with probes and grounds rated for the switch voltage; mains-connected or safety-relevant "
+    "equipment follows local codes and licensed practice.",
+)
+
+
+# --------------------------------------------------------------------------- inputs
+def prepare_capture(capture: Capture, board: Board) -> Capture:
+    """Fill what the capture does not say (sample rate, ADC bits, A per code, sense
+    position, board name) from the board file; what the capture says is kept."""
+    meta = capture.meta
+    changes: dict = {}
+    if meta.sample_rate_hz is None:
+        changes["sample_rate_hz"] = float(board.adc.sample_rate)
+    if meta.adc_bits is None:
+        changes["adc_bits"] = board.adc.bits
+    if meta.amps_per_code is None:
+        vpa = board.sense.resistance * board.sense.gain
+        changes["amps_per_code"] = board.adc.reference / 2**board.adc.bits / vpa
+    if meta.sense_position is None:
+        changes["sense_position"] = board.sense.position
+    if meta.board is None:
+        changes["board"] = board.name
+    return capture.with_meta(**changes) if changes else capture
+
+
+def operating_point(drive: Drive, capture: Capture, supply: float | None = None,
+                    coil_temp: float | None = None) -> OperatingPoint:
+    """Where to predict (see the module docstring for the order of sources)."""
+    nom = nominal_point(drive)
+    meta = capture.meta
+    if supply is not None:
+        v, v_from = float(supply), "--supply"
+    elif meta.supply_v is not None:
+        v, v_from = float(meta.supply_v), "capture header"
+    else:
+        codes = [e.value for e in capture.events if e.kind == EventKind.SUPPLY]
+        if codes:
+            adc = drive.board.adc
+            bits = meta.adc_bits or adc.bits
+            v = float(np.median(codes)) * adc.reference / 2**bits * drive.board.supply_sense.divider
+            v_from = f"capture SUPPLY events ({len(codes)}, through the board's divider)"
+        else:
+            v, v_from = float(nom.supply[0]), "drive file: supply.nominal"
+    if coil_temp is not None:
+        t, t_from = float(coil_temp), "--coil-temp"
+    elif meta.coil_temp_c is not None:
+        t, t_from = float(meta.coil_temp_c), "capture header"
+    else:
+        t, t_from = float(nom.ambient[0]), "drive file: coil.reference_temp within the ambient range"
+    if not (math.isfinite(v) and v > 0):
+        raise InputError("--supply" if v_from == "--supply" else capture.source, "supply",
+                         f"{v!r} V is not a bus voltage above zero")
+    if not (math.isfinite(t) and t > -273.15):
+        raise InputError("--coil-temp" if t_from == "--coil-temp" else capture.source, "coil_temp",
+                         f"{t!r} degC is not a temperature")
+    return OperatingPoint(v, t, v_from, t_from)
+
+
+# --------------------------------------------------------------------------- prediction
+def _waveform_crossing(w, level: float, start: float, rising: bool) -> float | None:
+    t, i = np.asarray(w.time), np.asarray(w.current)
+    k0 = int(np.searchsorted(t, start))
+    t, i = t[k0:], i[k0:]
+    hit = i >= level if rising else i <= level
+    if not hit.any():
+        return None
+    k = int(np.argmax(hit))
+    if k == 0:
+        return float(t[0] - start)
+    frac = (level - i[k - 1]) / (i[k] - i[k - 1]) if i[k] != i[k - 1] else 0.0
+    return float(t[k - 1] + frac * (t[k] - t[k - 1]) - start)
+
+
+def predict(design, point: OperatingPoint, hold_time: float) -> tuple[dict, object]:
+    """Predicted figures (SI) at ``point`` with the design's setting, and the model waveform
+    of one actuation with ``hold_time`` s of hold."""
+    from ..evaluate import evaluate
+    from ..model.waveform import actuation
+
+    drive = design.drive
+    cold = dataclasses.replace(drive, thermal=dataclasses.replace(drive.thermal, resistance=0.0))
+    peak, duty, freq = design.pull_in.peak_time_s, design.hold.duty, design.hold.frequency_hz
+    res = evaluate(cold, np.array([point.supply_v]), np.array([point.coil_temp_c]), 1.0, 1.0,
+                   duty, freq, peak)
+    w = actuation(cold, point.supply_v, point.coil_temp_c, peak, duty, freq, hold_time,
+                  label=f"model at {point.supply_v:.4g} V, {point.coil_temp_c:.4g} degC")
+    pred = {
+        "pull_in_time_s": float(res.pull_in_time[0]),
+        "peak_duration_s": float(peak),
+        "hold_mean_a": float(res.hold.mean[0]),
+        "hold_ripple_a": float(res.hold.ripple[0]),
+        "release_time_s": float(res.release_time[0]),
+        "hold_duty": float(duty),
+        "hold_frequency_hz": float(freq),
+        "pull_in_current_a": drive.pull_in.current,
+        "dropout_current_a": drive.release.current,
+        "seated_time_s": None,
+    }
+    if drive.armature is not None:
+        # the armature model's times mean other moments (at rest on a stop): the times to a
+        # current are read off the model waveform instead, the seat from the dip
+        pred["pull_in_time_s"] = _waveform_crossing(w, drive.pull_in.current, 0.0, True)
+        pred["release_time_s"] = _waveform_crossing(w, drive.release.current, w.events["off"], False)
+        pin = getattr(getattr(res, "armature", None), "pull_in", None)
+        dip = getattr(pin, "dip_time", None)
+        seat = np.asarray(dip if dip is not None else res.pull_in_time, float).ravel()
+        pred["seated_time_s"] = float(seat[0]) if np.isfinite(seat[0]) else None
+    return pred, w
+
+
+# --------------------------------------------------------------------------- the check
+def _row(name: str, unit: str, values: list, predicted: float | None, tol: float, floor: float,
+         na_reason: str | None = None, missing_fails: bool = True, extra: str = "") -> CheckItem:
+    if na_reason is not None:
+        return CheckItem(name, NA, None, predicted, None, None, unit, na_reason, tuple(values))
+    if predicted is None or not math.isfinite(predicted):
+        return CheckItem(name, INFO, _first(values), None, None, None, unit,
+                         "no prediction from the model" + extra, tuple(values))
+    half = max(abs(predicted) * tol, floor)
+    low, high = predicted - half, predicted + half
+    if not values:
+        return CheckItem(name, FAIL, None, predicted, low, high, unit, "no actuation to measure",
+                         ())
+    missing = [k + 1 for k, v in enumerate(values) if v is None]
+    present = [v for v in values if v is not None]
+    worst = max(present, key=lambda v: abs(v - predicted)) if present else None
+    bad = [k + 1 for k, v in enumerate(values) if v is not None and not low <= v <= high]
+    if missing and missing_fails:
+        status, detail = FAIL, f"not measured in actuation(s) {_list(missing)}"
+    elif bad:
+        status, detail = FAIL, f"outside the band in actuation(s) {_list(bad)}"
+    else:
+        status, detail = PASS, f"all {len(present)} within +/-{tol:.0%}" + (
+            f" (band widened to the resolution)" if half > abs(predicted) * tol else "")
+    return CheckItem(name, status, worst, predicted, low, high, unit, detail + extra, tuple(values))
+
+
+def _first(values):
+    present = [v for v in values if v is not None]
+    return present[0] if present else None
+
+
+def _list(numbers: list[int]) -> str:
+    return ", ".join(map(str, numbers[:8])) + (" ..." if len(numbers) > 8 else "")
+
+
+def check_capture(capture: Capture, design, tolerances: Tolerances | None = None,
+                  supply: float | None = None, coil_temp: float | None = None,
+                  use_events: bool = True) -> CheckReport:
+    """Compare every actuation of ``capture`` with ``design`` (a :class:`~coildrive.design.Design`).
+
+    Parameters
+    ----------
+    capture : a capture; what it does not say about its sampling comes from the design's board.
+    design : the design the firmware runs.
+    tolerances : :class:`Tolerances` (default: ours).
+    supply, coil_temp : operating point in V and degC (default: see the module docstring).
+    use_events : take the phases from event records when the capture has them.
+    """
+    tol = tolerances or Tolerances()
+    drive = design.drive
+    board = drive.board
+    capture = prepare_capture(capture, board)
+    point = operating_point(drive, capture, supply, coil_temp)
+    meta = capture.meta
+    notes: list[str] = []
+    if meta.board is not None and meta.board != board.name:
+        notes.append(f"the capture says board {meta.board!r}, the drive uses {board.name!r}")
+    for key, mine in (("peak_time_s", design.pull_in.peak_time_s), ("hold_duty", design.hold.duty),
+                      ("hold_frequency_hz", design.hold.frequency_hz)):
+        theirs = getattr(meta, key)
+        if theirs is not None and abs(theirs - mine) > 1e-6 * max(abs(mine), 1e-12):
+            notes.append(f"the capture ran {key} = {theirs:.6g}, the design has {mine:.6g}")
+    f_hold = design.hold.frequency_hz
+    a = analyse(capture, pull_in_current=drive.pull_in.current,
+                dropout_current=drive.release.current, hold_frequency=f_hold,
+                use_events=use_events)
+    acts = a.actuations
+    holds = [x.hold_duration_s for x in acts if x.hold_duration_s]
+    hold_time = float(np.median(holds)) if holds else max(2 * design.pull_in.peak_time_s, 20 / f_hold)
+    pred, w = predict(design, point, hold_time)
+    fs, apc = a.sample_rate_hz, a.amps_per_code
+    period = 1.0 / fs
+    items: list[CheckItem] = []
+
+    n = len(acts)
+    items.append(CheckItem("actuations", PASS if n else FAIL, float(n), None, None, None, "",
+                           f"{n} found" + (f" from {acts[0].phases_from}" if n else
+                                           ": no current rose (open coil?) or no actuation captured")))
+    missing = sum(x.samples_missing for x in acts)
+    link_detail = (f"{missing} missing in actuations; {capture.lost_frames} frames lost, "
+                   f"{capture.crc_errors} CRC errors")
+    items.append(CheckItem("link", FAIL if missing else PASS, float(missing), 0.0, 0.0, 0.0, "samples",
+                           link_detail))
+    if n:
+        def res_floor(name: str) -> float:
+            r = [getattr(x, name) for x in acts if getattr(x, name) is not None]
+            return 2.0 * max([period] + r)
+
+        items.append(_row("pull_in_time", "s", [x.pull_in_time_s for x in acts], pred["pull_in_time_s"],
+                          tol.pull_in_time, res_floor("pull_in_resolution_s"),
+                          extra=f" (to {drive.pull_in.current:.4g} A)"))
+        seated = [x.seated_time_s for x in acts]
+        if drive.armature is not None:
+            items.append(_row("seated_time", "s", seated, pred["seated_time_s"], tol.seated_time,
+                              2.0 * period, extra=" (bottom of the current dip)"))
+        else:
+            shown = [v for v in seated if v is not None]
+            items.append(CheckItem("seated_time", INFO, _first(seated), None, None, None, "s",
+                                   ("dip seen in " f"{len(shown)} of {n}" if shown else "no dip seen")
+                                   + "; the drive has no [armature] model to predict it", tuple(seated)))
+        from_waveform = acts[0].phases_from == "waveform"
+        pk = pred["peak_duration_s"] + (pred["hold_duty"] / f_hold if from_waveform else 0.0)
+        tick = 1.0 / board.tick.rate
+        items.append(_row("peak_duration", "s", [x.peak_duration_s for x in acts], pk, tol.peak_duration,
+                          2.0 * period + tick,
+                          extra=" (from the waveform: to the first switch-off, one hold on-time "
+                                "after the peak)" if from_waveform else ""))
+        sense_switch = a.sense_position == "switch"
+        switch_dcm = sense_switch and all(x.hold_discontinuous for x in acts)
+        items.append(_row("hold_mean", "A", [x.hold_mean_a for x in acts], pred["hold_mean_a"],
+                          tol.hold_mean, 2.0 * apc,
+                          na_reason="sense under the switch in discontinuous conduction: the coil "
+                                    "current cannot be seen while the switch is off" if switch_dcm else None))
+        spp = fs / f_hold
+        resolved = spp >= 10.0
+        items.append(_row("hold_ripple", "A", [x.hold_ripple_a for x in acts], pred["hold_ripple_a"],
+                          tol.hold_ripple, 2.0 * apc,
+                          na_reason=None if resolved else
+                          f"{spp:.3g} samples per PWM period (< 10): the sample rate cannot resolve the ripple"))
+        items.append(_row("release_time", "s", [x.release_time_s for x in acts], pred["release_time_s"],
+                          tol.release_time, res_floor("release_resolution_s"),
+                          na_reason="sense under the switch: the release decay is invisible" if sense_switch else None,
+                          extra=f" (to {drive.release.current:.4g} A)"))
+    return CheckReport(items=tuple(items), analysis=a, point=point, tolerances=tol, prediction=pred,
+                       drive_name=drive.name, board_name=board.name, capture_source=capture.source,
+                       notes=tuple(notes + list(a.notes)), cautions=BENCH_CAUTIONS, waveform=w)
+

@@ -1,0 +1,232 @@
+"""Synthetic captures: what the board's current-sense ADC would stream for model actuations.
+
+A pure function of its inputs (no files, ports or clocks; the noise comes from a seeded
+generator), so the bench emulator can stream its codes and the tests can check the
+analysis against the model that made them.
+
+The chain per sample, at the board's ADC sample rate ``f_s``:
+
+1. the coil current ``i(t)`` of :func:`coildrive.model.waveform.actuation` (or any
+   function with its signature, e.g. one with a moving armature), read at the sample
+   instant by linear interpolation between the waveform's points (they resolve every
+   switch edge, and between edges the closed-form segments are smooth: the tests bound
+   the interpolation error far below one code);
+2. the sense position: in the coil path the resistor sees ``i``; under the switch it
+   sees ``i`` while the switch is on and nothing while it is off;
+3. volts ``V = i R_sense gain``, plus Gaussian noise of ``noise_codes`` codes (one sigma),
+   then the code ``floor(V / V_ref 2^bits)`` clipped to ``0 .. 2^bits - 1`` (the design's
+   ADC convention, :func:`coildrive.design._adc_code`).
+
+Events carry the index of the first sample taken at or after them (the bench link's
+convention): ``on`` at switch-on, ``peak_end`` when the hold starts, ``off`` at the final
+switch-off, and ``switch`` (position switch) when the waveform reports an armature
+position. Actuations start at a random sub-sample phase, separated by idle time.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from typing import Callable
+
+import numpy as np
+
+from ..config import Drive
+from ..corners import nominal_point
+from ..model.waveform import Waveform, actuation
+from .capture_file import Capture, CaptureEvent
+from .messages import EventKind
+
+FAULTS = ("open", "shorted_turns", "stuck")
+"""Faults :func:`synth_capture` can put in: an open coil (no current), shorted turns
+(lower R and L), a stuck armature (it never moves: no dip)."""
+
+WaveformFunction = Callable[..., Waveform]
+
+
+def adc_scaling(drive: Drive) -> tuple[float, float]:
+    """``(volts_per_amp, amps_per_code)`` of the board's current-sense channel (V/A, A)."""
+    board = drive.board
+    vpa = board.sense.resistance * board.sense.gain
+    return vpa, board.adc.reference / 2**board.adc.bits / vpa
+
+
+def faulty_drive(drive: Drive, fault: str | None, shorted_fraction: float = 0.2) -> tuple[Drive, float, float]:
+    """The drive as the fault makes it, and the extra R and L factors of the fault.
+
+    ``shorted_turns``: a fraction ``s`` of the turns shorted leaves ``(1 - s)`` of the
+    winding, so ``R`` scales by ``1 - s`` (wire length goes with turns) and ``L`` by
+    ``(1 - s)^2`` (inductance goes with turns squared on the same magnetic path) —
+    textbook inductor relations, e.g. ``L = N^2 / reluctance``.
+    ``stuck``: the armature stays open, so the coil is a fixed inductor of its open
+    inductance (no motion, no dip); a drive without ``[armature]`` is unchanged.
+    ``open``: the drive is unchanged; the current is forced to zero by the caller.
+    """
+    if fault is None or fault == "open":
+        return drive, 1.0, 1.0
+    if fault == "shorted_turns":
+        if not 0 < shorted_fraction < 1:
+            raise ValueError(f"shorted_fraction {shorted_fraction} must be in (0, 1)")
+        keep = 1.0 - shorted_fraction
+        return drive, keep, keep * keep
+    if fault == "stuck":
+        arm = drive.armature
+        if arm is None:
+            return drive, 1.0, 1.0
+        coil = dataclasses.replace(drive.coil, inductance=arm.inductance_open)
+        return dataclasses.replace(drive, armature=None, coil=coil), 1.0, 1.0
+    raise ValueError(f"unknown fault {fault!r}, expected one of {', '.join(FAULTS)}")
+
+
+def _switch_state(w: Waveform, t: np.ndarray) -> np.ndarray:
+    """Switch state (bool) at times ``t`` (s from switch-on) from the waveform's points.
+
+    An interval between two points is on only when both ends are on (edges are points
+    of the waveform, flagged with their on side); a time that hits a point takes its flag.
+    """
+    on = np.asarray(w.switch_on).astype(bool)
+    k = np.clip(np.searchsorted(w.time, t, side="right") - 1, 0, w.time.size - 1)
+    k1 = np.minimum(k + 1, w.time.size - 1)
+    state = on[k] & on[k1]
+    exact = w.time[k] == t
+    state[exact] = on[k[exact]]
+    return state
+
+
+def _seated_changes(w: Waveform) -> list[tuple[float, int]]:
+    """(time, level) where a waveform with an armature position seats (1) or leaves (0)."""
+    pos = getattr(w, "position", None)
+    if pos is None:
+        pos = getattr(w, "position_m", None)
+    if pos is None:
+        return []
+    pos = np.asarray(pos, float)
+    if pos.shape != w.time.shape:
+        return []
+    seated = (pos <= 1e-9).astype(np.int8)
+    change = np.flatnonzero(np.diff(seated)) + 1
+    return [(float(w.time[k]), int(seated[k])) for k in change]
+
+
+def synth_capture(drive: Drive, peak_time: float, duty: float, frequency: float, *,
+                  supply: float | None = None, coil_temp: float | None = None,
+                  hold_time: float = 0.02, actuations: int = 1, idle_time: float = 0.005,
+                  resistance_scale: float = 1.0, inductance_scale: float = 1.0,
+                  fault: str | None = None, shorted_fraction: float = 0.2,
+                  noise_codes: float = 0.0, seed: int = 0, events: bool = True,
+                  first_index: int = 0, on_phase: float | None = None,
+                  waveform: WaveformFunction = actuation) -> Capture:
+    """A capture of ``actuations`` actuations as the board's ADC would stream it.
+
+    Parameters
+    ----------
+    drive : the drive, resolved against the board whose ADC and sense resistor are used.
+    peak_time : s of full-on; duty : hold PWM duty 0..1; frequency : hold PWM Hz.
+    supply : V (default: the drive's nominal supply).
+    coil_temp : degC, the coil's temperature throughout (default: its reference
+        temperature clipped into the ambient range, as :func:`coildrive.corners.nominal_point`).
+    hold_time : s of hold per actuation; actuations : how many.
+    idle_time : s of zero current before the first actuation, between actuations (from
+        the end of one release to the next switch-on) and after the last.
+    resistance_scale, inductance_scale : the real coil against the drive file
+        (1.4 = 40 % more resistance than designed).
+    fault : ``None`` or one of :data:`FAULTS`; shorted_fraction : of the turns, for
+        ``shorted_turns``.
+    noise_codes : Gaussian noise in ADC codes (one sigma), added before quantisation.
+    seed : seeds the noise and the sub-sample phases; the same inputs give the same codes.
+    events : include the event records (a board that sends no events: ``False``).
+    first_index : device sample index of the first sample.
+    on_phase : where each switch-on falls inside its sample interval, 0..1 (default:
+        random, from the seed); actuation ``k`` switches on at
+        ``(floor(t_k f_s) + on_phase) / f_s`` with ``t_k`` the end of the idle before it.
+    waveform : the waveform function, with the signature of
+        :func:`coildrive.model.waveform.actuation`.
+
+    Returns
+    -------
+    Capture with metadata (sample rate, scaling, sense position, operating point and the
+    settings used; the fault and scales in ``meta.extra``).
+    """
+    if on_phase is not None and not 0.0 <= on_phase < 1.0:
+        raise ValueError(f"on_phase {on_phase} must be in [0, 1)")
+    if actuations < 1:
+        raise ValueError(f"actuations {actuations} must be >= 1")
+    for name, value in (("hold_time", hold_time), ("idle_time", idle_time), ("noise_codes", noise_codes)):
+        if not (math.isfinite(value) and value >= 0):
+            raise ValueError(f"{name} {value} must be >= 0")
+    for name, value in (("resistance_scale", resistance_scale), ("inductance_scale", inductance_scale)):
+        if not (math.isfinite(value) and value > 0):
+            raise ValueError(f"{name} {value} must be > 0")
+    nominal = nominal_point(drive)
+    supply = float(nominal.supply[0]) if supply is None else float(supply)
+    coil_temp = float(nominal.ambient[0]) if coil_temp is None else float(coil_temp)
+    model_drive, r_fault, l_fault = faulty_drive(drive, fault, shorted_fraction)
+    w = waveform(model_drive, supply, coil_temp, peak_time, duty, frequency, hold_time,
+                 resistance_scale * r_fault, inductance_scale * l_fault, label="synthetic")
+    board = drive.board
+    fs = float(board.adc.sample_rate)
+    vpa, apc = adc_scaling(drive)
+    full = 2**board.adc.bits - 1
+    rng = np.random.default_rng(seed)
+    length = float(w.events["zero"])
+
+    # timeline in samples: idle, then each actuation at a random sub-sample phase
+    on_times = []
+    t = idle_time
+    for _ in range(actuations):
+        phase = rng.uniform(0.0, 1.0) if on_phase is None else float(on_phase)
+        t_on = (math.floor(t * fs) + phase) / fs
+        on_times.append(t_on)
+        t = t_on + length + idle_time
+    n = int(math.ceil(t * fs)) + 1
+    sense = np.zeros(n)
+    capture_events: list[CaptureEvent] = []
+    seat = _seated_changes(w)
+    coil_path = board.sense.position == "coil"
+
+    def first_at_or_after(time_s: float) -> int:
+        return int(math.ceil(time_s * fs - 1e-9))
+
+    for t_on in on_times:
+        k0 = first_at_or_after(t_on)
+        k1 = min(int(math.floor((t_on + length) * fs)), n - 1)
+        k = np.arange(k0, k1 + 1)
+        t_rel = k / fs - t_on
+        i = np.interp(t_rel, w.time, w.current)
+        if not coil_path:
+            i = np.where(_switch_state(w, t_rel), i, 0.0)
+        if fault == "open":
+            i = np.zeros_like(i)
+        sense[k0:k1 + 1] = i
+        if events:
+            for name, kind in (("on", EventKind.ON), ("hold", EventKind.PEAK_END), ("off", EventKind.OFF)):
+                capture_events.append(CaptureEvent(first_index + first_at_or_after(t_on + w.events[name]),
+                                                   int(kind)))
+            for t_change, level in seat:
+                if fault != "open":
+                    capture_events.append(CaptureEvent(first_index + first_at_or_after(t_on + t_change),
+                                                       int(EventKind.SWITCH), level))
+    volts = sense * vpa
+    codes = volts / board.adc.reference * 2**board.adc.bits
+    if noise_codes > 0:
+        codes = codes + rng.normal(0.0, noise_codes, n)
+    codes = np.clip(np.floor(codes), 0, full).astype(np.uint16)
+    capture_events.sort(key=lambda e: e.index)
+    extra = {"resistance_scale": resistance_scale, "inductance_scale": inductance_scale,
+             "fault": fault, "noise_codes": noise_codes, "seed": seed}
+    if fault == "shorted_turns":
+        extra["shorted_fraction"] = shorted_fraction
+    return Capture.from_codes(
+        codes, first_index=first_index, events=capture_events, source="synthetic",
+        sample_rate_hz=fs, adc_bits=board.adc.bits, amps_per_code=apc, zero_code=0,
+        sense_position=board.sense.position, board=board.name, drive=drive.name,
+        firmware_id="coildrive synthetic capture", has_position_switch=bool(seat),
+        supply_v=supply, coil_temp_c=coil_temp, peak_time_s=float(peak_time),
+        hold_duty=float(duty), hold_frequency_hz=float(frequency), link="synthetic", extra=extra)
+
+
+def synth_design_capture(design, **kwargs) -> Capture:
+    """:func:`synth_capture` with a :class:`~coildrive.design.Design`'s drive, peak time,
+    duty and frequency (as the timer makes it); keyword arguments as there."""
+    return synth_capture(design.drive, design.pull_in.peak_time_s, design.hold.duty,
+                         design.hold.frequency_hz, **kwargs)

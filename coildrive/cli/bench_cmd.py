@@ -1,0 +1,166 @@
+"""Bench commands on a capture file: ``check`` (against the design) and ``fit`` (the coil)."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Optional
+
+import typer
+
+from ..errors import InputError
+from ..fileio import write_atomic
+from ..units import format_si, parse_quantity
+from .common import status, user_errors
+
+
+def _quantity(text: Optional[str], dimension: str, option: str) -> float | None:
+    if text is None:
+        return None
+    return parse_quantity(text, dimension, option)
+
+
+def _fraction(text: Optional[str], option: str) -> float | None:
+    if text is None:
+        return None
+    value = parse_quantity(text, "dimensionless", option)
+    if not 0 <= value < 10:
+        raise InputError(option, "", f"{text!r} is not a tolerance, expected a fraction such as 0.15 or \"15 %\"")
+    return value
+
+
+def _board_for(capture, board: Optional[str]):
+    """The board from ``--board``, else the bundled board the capture names."""
+    from ..config import load_board, resolve_board
+
+    spec = board or capture.meta.board
+    if spec is None:
+        raise InputError("--board", "", "the capture does not name its board: give --board NAME or a board file")
+    try:
+        path = resolve_board(str(spec))
+    except InputError as err:
+        raise InputError("--board" if board else capture.source, "" if board else "board", err.message) from None
+    return load_board(path)
+
+
+def _cell(value, unit: str) -> str:
+    if value is None:
+        return "-"
+    if unit == "samples" or unit == "":
+        return f"{value:g}"
+    return format_si(float(value), unit)
+
+
+def _print_check(report, console=None) -> None:
+    from rich.console import Console
+    from rich.markup import escape
+    from rich.table import Table
+
+    console = console or Console()
+    p = report.point
+    t = Table(title=f"coildrive check: {report.capture_source} against {report.drive_name} on {report.board_name}")
+    for col, just in (("figure", "left"), ("measured", "right"), ("predicted", "right"),
+                      ("accepted", "right"), ("result", "left"), ("detail", "left")):
+        t.add_column(col, justify=just)
+    marks = {"pass": "[green]pass[/green]", "FAIL": "[bold red]FAIL[/bold red]",
+             "n/a": "[yellow]n/a[/yellow]", "info": "[cyan]info[/cyan]"}
+    for i in report.items:
+        band = "-" if i.low is None else f"{_cell(i.low, i.unit)} .. {_cell(i.high, i.unit)}"
+        t.add_row(i.name, _cell(i.measured, i.unit), _cell(i.predicted, i.unit), band,
+                  marks.get(i.status, i.status), escape(i.detail))
+    t.caption = escape(f"at {p.supply_v:.4g} V ({p.supply_from}), coil {p.coil_temp_c:.4g} degC ({p.coil_temp_from}); "
+                 "measured = the actuation farthest from the prediction")
+    console.print(t)
+    for note in report.notes:
+        console.print(f"  note: {escape(note)}")
+    console.print("[bold]Cautions[/bold]")
+    for c in report.cautions:
+        console.print(f"  ! {escape(c)}")
+    if report.ok:
+        console.print("[green]check passed[/green]")
+    else:
+        console.print("[bold red]check FAILED[/bold red]: " + ", ".join(i.name for i in report.failed))
+
+
+@user_errors
+def check_command(
+    capture: Path = typer.Argument(..., help="Capture file (coildrive capture format, or text-mode index,adc lines)."),
+    drive: Path = typer.Argument(..., help="Drive file (TOML) whose design the firmware runs."),
+    board: Optional[str] = typer.Option(None, "--board", "-b", help="Bundled board name or board file; overrides the drive file's board."),
+    supply: Optional[str] = typer.Option(None, "--supply", help='Bus voltage during the capture, e.g. 24 or "24 V" (default: the capture\'s, else the nominal supply).'),
+    coil_temp: Optional[str] = typer.Option(None, "--coil-temp", help='Coil temperature during the capture, e.g. 25 or "25 degC" (default: the capture\'s, else the coil\'s reference temperature).'),
+    tol_pull_in: Optional[str] = typer.Option(None, "--tol-pull-in", help="Tolerance on the pull-in time (default 0.15 = 15 %)."),
+    tol_seated: Optional[str] = typer.Option(None, "--tol-seated", help="Tolerance on the seat time, with [armature] (default 0.20)."),
+    tol_peak: Optional[str] = typer.Option(None, "--tol-peak", help="Tolerance on the peak duration (default 0.05)."),
+    tol_hold_mean: Optional[str] = typer.Option(None, "--tol-hold-mean", help="Tolerance on the hold mean current (default 0.10)."),
+    tol_ripple: Optional[str] = typer.Option(None, "--tol-ripple", help="Tolerance on the hold ripple (default 0.30)."),
+    tol_release: Optional[str] = typer.Option(None, "--tol-release", help="Tolerance on the release time (default 0.20)."),
+    no_events: bool = typer.Option(False, "--no-events", help="Find the phases from the waveform even when the capture has events."),
+    as_json: bool = typer.Option(False, "--json", help="Print the report as one JSON document on stdout."),
+    plot: Optional[Path] = typer.Option(None, "--plot", help="Write a PNG of the measured actuations over the predicted one."),
+) -> None:
+    """Check a capture against the design of DRIVE: a pass/fail table; exit 1 on any fail."""
+    from ..bench.capture_file import read_capture
+    from ..bench.check import Tolerances, check_capture
+    from ..config import load_drive
+    from ..design import design
+
+    overrides = {"pull_in_time": _fraction(tol_pull_in, "--tol-pull-in"),
+                 "seated_time": _fraction(tol_seated, "--tol-seated"),
+                 "peak_duration": _fraction(tol_peak, "--tol-peak"),
+                 "hold_mean": _fraction(tol_hold_mean, "--tol-hold-mean"),
+                 "hold_ripple": _fraction(tol_ripple, "--tol-ripple"),
+                 "release_time": _fraction(tol_release, "--tol-release")}
+    tolerances = Tolerances(**{k: v for k, v in overrides.items() if v is not None})
+    v = _quantity(supply, "voltage", "--supply")
+    t = _quantity(coil_temp, "temperature", "--coil-temp")
+    cap = read_capture(capture)
+    result = design(load_drive(drive, board))
+    report = check_capture(cap, result, tolerances, supply=v, coil_temp=t, use_events=not no_events)
+    if as_json:
+        typer.echo(json.dumps(report.to_dict(), indent=2))
+    else:
+        _print_check(report)
+    if plot is not None:
+        from ..bench.plot import plot_check
+        from ..bench.check import prepare_capture
+        write_atomic(plot, plot_check(report, prepare_capture(cap, result.drive.board)))
+        status(f"wrote plot {plot}")
+    if not report.ok:
+        raise typer.Exit(1)
+
+
+@user_errors
+def fit_command(
+    capture: Path = typer.Argument(..., help="Capture file (coildrive capture format, or text-mode index,adc lines)."),
+    board: Optional[str] = typer.Option(None, "--board", "-b", help="Bundled board name or board file (default: the board the capture names)."),
+    supply: Optional[str] = typer.Option(None, "--supply", help='Bus voltage during the capture, e.g. 24 or "24 V" (default: the capture\'s).'),
+    coil_temp: Optional[str] = typer.Option(None, "--coil-temp", help='Coil temperature during the capture (default: the capture\'s, else 20 degC, flagged).'),
+    as_json: bool = typer.Option(False, "--json", help="Print the fit as one JSON document on stdout."),
+) -> None:
+    """Fit the coil's R and L from the rise before the armature moves; print a [coil] section."""
+    from ..bench.analysis import analyse
+    from ..bench.capture_file import read_capture
+    from ..bench.check import prepare_capture
+    from ..bench.fit import fit_capture
+
+    cap = read_capture(capture)
+    brd = _board_for(cap, board)
+    cap = prepare_capture(cap, brd)
+    v = _quantity(supply, "voltage", "--supply")
+    if v is None:
+        v = cap.meta.supply_v
+    if v is None:
+        raise InputError("--supply", "", "the capture does not say its bus voltage: give --supply V")
+    t = _quantity(coil_temp, "temperature", "--coil-temp")
+    if t is None:
+        t = cap.meta.coil_temp_c
+    result = fit_capture(cap, brd, v, t, analyse(cap))
+    if as_json:
+        typer.echo(json.dumps(result.to_dict(), indent=2))
+        return
+    for note in result.notes:
+        status(f"note: {note}")
+    status(f"fitted {len(result.fits)} actuation(s) at {v:.4g} V: loop {result.loop_resistance_ohm:.4g} ohm "
+           f"(switch {result.switch_resistance_ohm:.3g} + sense {result.sense_resistance_ohm:.3g} ohm)")
+    typer.echo(result.coil_section(), nl=False)

@@ -1,0 +1,641 @@
+"""Current-mode hold (``[hold] mode = "current"``): thresholds, figures and checks.
+
+:func:`design_current_mode` is what :func:`coildrive.design.design` runs for a
+current-mode drive. It starts from the fixed-duty design of the same drive (kept as
+the *fixed-duty fallback*: ``timer``, ``duty_table`` and ``_HOLD_COMPARE_TICKS`` keep
+their voltage-mode meaning, for firmware that starts the hold open-loop or falls back
+to it), then replaces everything the hold decides with the current-mode model of
+:mod:`coildrive.model.current_mode`:
+
+* thresholds in ADC codes of the current-sense channel (a code ``c`` trips at
+  ``c x LSB`` A): the lower (hysteretic) or peak (off-time) code is the smallest whose
+  mean current meets ``hold.current`` at every corner with self-heating; the band
+  (``hold.band``) or off time (``hold.off_time``, made by the board's timer in whole
+  ticks) is sized when not given: among the bands / off times whose switching
+  frequency fits the allowed range at every corner, the one nearest ``hold.frequency``
+  at the nominal point (the coil taken at the temperature a hold at ``hold.current``
+  gives it, for sizing only);
+* coil temperatures, pull-in, peak phase, release, ADC thresholds and cautions at the
+  temperatures the current-mode hold settles at;
+* checks: the switching frequency stays inside ``hold.min_frequency`` ..
+  ``hold.max_frequency`` at every corner, the threshold is reachable at every corner,
+  the sense position suits the control (hysteretic needs the coil path), the codes fit
+  the ADC, the off time fits the timer.
+
+In the design JSON ``hold.frequency_hz`` is the switching frequency at the nominal
+point, ``hold.duty`` the largest switch-on fraction over the corners (1 where the
+threshold is out of reach) and ``hold.current_step_a`` one ADC code; the top-level
+``current_mode`` object holds the thresholds and the frequency range.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from dataclasses import asdict, dataclass
+
+import numpy as np
+
+from .config import Drive
+from .corners import CornerGrid, corner_grid, nominal_point
+from .errors import InputError
+from .evaluate import PointResults
+from .model.circuit import freewheel_element_energy, loop
+from .model.current_mode import (CurrentModeSteadyState, hysteretic_steady_state,
+                                 off_time_steady_state)
+from .model.rl import decay_current, decay_integrals, decay_time, rise_current, rise_time
+from .model.thermal import settle_temperature
+from .timer import solve_timer
+
+#: Upper end of the allowed switching range when neither ``hold.max_frequency`` nor the
+#: board's ``timer.max_pwm_frequency`` gives one (our choice, as for ``coildrive tune``).
+DEFAULT_MAX_FREQUENCY = 100_000.0
+#: Fewest ADC samples per shortest switching segment before the sampling lag deserves a
+#: ``hold.sense_delay`` (our choice).
+MIN_SAMPLES_PER_SEGMENT = 4
+
+
+@dataclass(frozen=True)
+class Thresholds:
+    """A current-mode setting. Currents in A (code x LSB), times in s.
+
+    ``lower_code`` is 0 for the off-time control; ``off_*`` are 0 for hysteretic.
+    """
+
+    control: str
+    lsb_a: float
+    lower_code: int
+    upper_code: int
+    off_time_s: float
+    off_prescaler: int
+    off_ticks: int
+    off_time_target_s: float
+    delay_s: float
+    sized: bool
+
+    @property
+    def lower_a(self) -> float:
+        return self.lower_code * self.lsb_a
+
+    @property
+    def upper_a(self) -> float:
+        return self.upper_code * self.lsb_a
+
+
+@dataclass(frozen=True)
+class CurrentModeResult:
+    """The ``current_mode`` object of the design JSON (SI, Hz, degC)."""
+
+    control: str
+    sense_position: str
+    code_current_a: float
+    lower_code: int | None
+    lower_a: float | None
+    upper_code: int
+    upper_a: float
+    band_codes: int | None
+    band_a: float | None
+    off_time_s: float | None
+    off_time_target_s: float | None
+    off_prescaler: int | None
+    off_ticks: int | None
+    sized_from_frequency: bool
+    sense_delay_s: float
+    nominal_frequency_hz: float
+    min_frequency_hz: float
+    min_frequency_corner: str
+    max_frequency_hz: float
+    max_frequency_corner: str
+    allowed_min_frequency_hz: float
+    allowed_max_frequency_hz: float
+    allowed_max_source: str
+    min_duty: float
+    max_duty: float
+    shortest_segment_s: float
+    regulated_corners: int
+    corners: int
+
+
+def lsb_current(drive: Drive) -> float:
+    """Current in A of one code of the current-sense ADC channel."""
+    b = drive.board
+    return b.adc.reference / 2**b.adc.bits / (b.sense.resistance * b.sense.gain)
+
+
+def allowed_range(drive: Drive) -> tuple[float, float, str]:
+    """``(low, high, source of high)``: the switching frequencies allowed, Hz."""
+    h = drive.hold
+    if h.max_frequency > 0:
+        return h.min_frequency, h.max_frequency, "hold.max_frequency"
+    if drive.board.timer.max_pwm_frequency > 0:
+        return h.min_frequency, drive.board.timer.max_pwm_frequency, "board timer.max_pwm_frequency"
+    return h.min_frequency, DEFAULT_MAX_FREQUENCY, "default"
+
+
+def steady_state(drive: Drive, lp, lower_a, upper_a, off_time, delay) -> CurrentModeSteadyState:
+    """The current-mode steady state for the drive's control at loop ``lp``."""
+    if drive.hold.control == "hysteretic":
+        return hysteretic_steady_state(lower_a, upper_a, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
+                                       lp.inductance, delay)
+    return off_time_steady_state(upper_a, off_time, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
+                                 lp.inductance, delay)
+
+
+def settle(drive: Drive, supply, ambient, r_factor, l_factor, lower_a, upper_a, off_time, delay):
+    """Coil temperature (degC, ``inf`` on runaway), loop and steady state after a long
+    current-mode hold at each point (the fixed point of model/thermal.py)."""
+    def at(temp):
+        lp = loop(drive, supply, temp, r_factor, l_factor)
+        return lp, steady_state(drive, lp, lower_a, upper_a, off_time, delay)
+
+    def power_at(temp):
+        lp, ss = at(temp)
+        return ss.rms**2 * lp.r_coil
+    temp = settle_temperature(ambient, drive.thermal.resistance, power_at)
+    lp, ss = at(np.where(np.isfinite(temp), temp, drive.thermal.max_coil_temp))
+    return temp, lp, ss
+
+
+def _tiled(grid: CornerGrid, n: int):
+    return (np.tile(grid.supply, n), np.tile(grid.ambient, n), np.tile(grid.r_factor, n),
+            np.tile(grid.l_factor, n))
+
+
+def _smallest_holding(drive: Drive, grid: CornerGrid, codes: np.ndarray, band: int,
+                      off_time: float, delay: float, lsb: float) -> int | None:
+    """Smallest code (lower for hysteretic, peak for off-time) whose mean meets the hold
+    current at every corner, regulated everywhere; ``None`` if none of ``codes`` does."""
+    c = len(grid)
+    n = codes.size
+    sup, amb, rf, lf = _tiled(grid, n)
+    if drive.hold.control == "hysteretic":
+        lo, hi = np.repeat(codes, c) * lsb, np.repeat(codes + band, c) * lsb
+    else:
+        lo, hi = 0.0, np.repeat(codes, c) * lsb
+    temp, lp, ss = settle(drive, sup, amb, rf, lf, lo, hi, off_time, delay)
+    ok = ((ss.mean >= drive.hold.current) & ss.regulated & np.isfinite(temp)).reshape(n, c).all(axis=1)
+    idx = np.flatnonzero(ok)
+    return int(codes[idx[0]]) if idx.size else None
+
+
+def _sizing_loops(drive: Drive, grid: CornerGrid):
+    """Loops at the corners and the nominal point with the coil at the temperature a hold
+    at ``hold.current`` gives it (sizing only; the design then evaluates exactly)."""
+    from .tune import closed_form_temperature
+
+    nom = nominal_point(drive)
+    sup = np.concatenate([nom.supply, grid.supply])
+    amb = np.concatenate([nom.ambient, grid.ambient])
+    rf = np.concatenate([nom.r_factor, grid.r_factor])
+    lf = np.concatenate([nom.l_factor, grid.l_factor])
+    temp = closed_form_temperature(drive, amb, rf, drive.hold.current)
+    temp = np.where(np.isfinite(temp), temp, drive.thermal.max_coil_temp)
+    return loop(drive, sup[None, :], temp[None, :], rf[None, :], lf[None, :])
+
+
+def _pick(drive: Drive, freq: np.ndarray, regulated: np.ndarray) -> int:
+    """Row of ``freq`` (candidates x [nominal, corners...]) to use: among the candidates
+    whose every corner is regulated and inside the allowed range, the one whose nominal
+    frequency is nearest ``hold.frequency`` (in ratio); if none fits, the nearest of all."""
+    f_lo, f_hi, _ = allowed_range(drive)
+    ok = regulated.all(axis=1) & (freq[:, 1:].min(axis=1) >= f_lo) & (freq[:, 1:].max(axis=1) <= f_hi)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        err = np.abs(np.log(freq[:, 0] / drive.hold.frequency))
+    err = np.where(np.isfinite(err) & regulated[:, 0], err, np.inf)
+    if np.any(ok):
+        err = np.where(ok, err, np.inf)
+    return int(np.argmin(err))
+
+
+def _size_band(drive: Drive, grid: CornerGrid, lsb: float, c0: int, full: int) -> int:
+    """Band in codes (centred on the hold current) for :func:`_pick`."""
+    lp = _sizing_loops(drive, grid)
+    b = np.arange(1, max(2, min(full - c0, 4096)) + 1)[:, None]
+    lo = np.maximum(c0 - b // 2, 1)
+    ss = hysteretic_steady_state(lo * lsb, (lo + b) * lsb, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
+                                 lp.inductance, drive.hold.sense_delay)
+    return int(b[_pick(drive, ss.frequency, ss.regulated), 0])
+
+
+def _size_off_time(drive: Drive, grid: CornerGrid, peak_a: float) -> float:
+    """Off time (s) for :func:`_pick`, from 400 log-spaced values up to 1 / min_frequency."""
+    lp = _sizing_loops(drive, grid)
+    f_lo, f_hi, _ = allowed_range(drive)
+    t = np.geomspace(0.01 / max(f_hi, drive.hold.frequency), 1.0 / min(f_lo, drive.hold.frequency), 400)
+    ss = off_time_steady_state(peak_a, t[:, None], lp.v_on, lp.r_on, lp.r_off, lp.v_off,
+                               lp.inductance, drive.hold.sense_delay)
+    return float(t[_pick(drive, ss.frequency, ss.regulated)])
+
+
+def choose_thresholds(drive: Drive, grid: CornerGrid) -> Thresholds:
+    """The current-mode setting for ``drive`` (see the module docstring)."""
+    h = drive.hold
+    lsb = lsb_current(drive)
+    full = 2**drive.board.adc.bits - 1
+    c0 = max(1, math.ceil(h.current / lsb - 1e-9))
+    delay = h.sense_delay
+    timer = drive.board.timer
+    if h.control == "hysteretic":
+        sized = h.band <= 0
+        band = _size_band(drive, grid, lsb, c0, full) if sized else max(1, round(h.band / lsb))
+        start = max(1, c0 - band - 2)
+        code = None
+        while code is None and start + band <= full:
+            codes = np.arange(start, min(full - band, start + 255) + 1)
+            code = _smallest_holding(drive, grid, codes, band, 0.0, delay, lsb)
+            start = int(codes[-1]) + 1
+        lower = code if code is not None else min(c0, full - band)
+        return Thresholds("hysteretic", lsb, lower, lower + band, 0.0, 0, 0, 0.0, delay, sized)
+    sized = h.off_time <= 0
+    target = _size_off_time(drive, grid, c0 * lsb) if sized else h.off_time
+    t = solve_timer(timer.clock, timer.bits, timer.prescaler_max, 1.0 / target,
+                    h.frequency_tolerance, timer.prescalers)
+    off = t.prescaler * t.period_ticks / timer.clock
+    start, code = c0, None
+    while code is None and start <= full:
+        codes = np.arange(start, min(full, start + 255) + 1)
+        code = _smallest_holding(drive, grid, codes, 0, off, delay, lsb)
+        start = int(codes[-1]) + 1
+    peak = code if code is not None else c0
+    return Thresholds("off_time", lsb, 0, peak, off, t.prescaler, t.period_ticks, target, delay, sized)
+
+
+def evaluate_current(drive: Drive, th: Thresholds, supply, ambient, r_factor, l_factor,
+                     peak_time) -> tuple[PointResults, CurrentModeSteadyState]:
+    """Every design figure at the points with the current-mode hold ``th`` (the
+    counterpart of :func:`coildrive.evaluate.evaluate`; the release starts from the
+    top of the ripple)."""
+    supply, ambient, r_factor, l_factor = np.broadcast_arrays(
+        *(np.asarray(x, float) for x in (supply, ambient, r_factor, l_factor)))
+    lower = th.lower_a if th.control == "hysteretic" else 0.0
+    temp, lp, cm = settle(drive, supply, ambient, r_factor, l_factor, lower, th.upper_a,
+                          th.off_time_s, th.delay_s)
+    ss = cm.as_pwm()
+    t_pull = rise_time(drive.pull_in.current, 0.0, lp.v_on, lp.r_on, lp.inductance)
+    i_peak = rise_current(peak_time, 0.0, lp.v_on, lp.r_on, lp.inductance)
+    power = ss.rms**2 * lp.r_coil
+    i_off = ss.i_max
+    t_drop = decay_time(drive.release.current, i_off, lp.r_off, lp.v_off, lp.inductance)
+    t_zero = decay_time(0.0, i_off, lp.r_off, lp.v_off, lp.inductance)
+    q, s = decay_integrals(t_zero, i_off, lp.r_off, lp.v_off, lp.inductance)
+    energy = freewheel_element_energy(drive, lp, q, s)
+    interrupt = np.maximum(i_peak, ss.i_max)
+    res = PointResults(supply=supply, ambient=ambient, coil_temp=temp, r_factor=r_factor,
+                       l_factor=l_factor, loop=lp, pull_in_time=t_pull, peak_end_current=i_peak,
+                       hold=ss, coil_power=power, release_time=t_drop, release_zero_time=t_zero,
+                       release_energy=energy, interrupt_current=interrupt,
+                       peak_switch_voltage=lp.switch_voltage(drive, interrupt))
+    return res, cm
+
+
+# --------------------------------------------------------------------------- design
+def design_current_mode(drive: Drive, samples: int = 0, seed: int = 1):
+    """The Design of a current-mode drive (see the module docstring)."""
+    from . import design as dz
+
+    if drive.armature is not None:
+        raise InputError(drive.source, "hold.mode", "current-mode hold with an [armature] is not "
+                         "modelled yet; use mode = \"voltage\" or leave [armature] out")
+    if samples > 0:
+        raise InputError("--samples", "", "the Monte Carlo covers the voltage-mode hold only "
+                         "(this drive has hold.mode = \"current\")")
+    fallback = dz.design(dataclasses.replace(drive, hold=dataclasses.replace(drive.hold, mode="voltage")))
+    grid = corner_grid(drive)
+    th = choose_thresholds(drive, grid)
+    board = drive.board
+
+    first, _ = evaluate_current(drive, th, grid.supply, grid.ambient, grid.r_factor, grid.l_factor, 0.0)
+    k_pull = dz._worst(first.pull_in_time)
+    t_pull = float(first.pull_in_time[k_pull])
+    tick_rate = board.tick.rate
+    peak_ticks = math.ceil(t_pull * drive.pull_in.margin * tick_rate - 1e-9) + 1 if math.isfinite(t_pull) else 0
+    peak_time = peak_ticks / tick_rate
+    res, cm = evaluate_current(drive, th, grid.supply, grid.ambient, grid.r_factor, grid.l_factor,
+                               peak_time)
+    nom_grid = nominal_point(drive)
+    nom, nom_cm = evaluate_current(drive, th, nom_grid.supply, nom_grid.ambient, nom_grid.r_factor,
+                                   nom_grid.l_factor, peak_time)
+    corners = dz._corners(grid, res)
+    nominal = dz._corners(nom_grid, nom)[0]
+    nominal = dz.Corner(**{**asdict(nominal), "label": "nominal: " + nominal.label})
+
+    k_min = dz._worst(res.hold.mean, largest=False)
+    k_max = dz._worst(res.hold.mean)
+    k_hot = dz._worst(res.coil_temp)
+    hold = dz.HoldResult(
+        mode="current", current_a=drive.hold.current, frequency_hz=float(nom_cm.frequency[0]),
+        duty=float(np.max(cm.duty)), compare_ticks=fallback.hold.compare_ticks,
+        min_mean_current_a=float(res.hold.mean[k_min]), min_corner=grid.label(k_min),
+        max_mean_current_a=float(res.hold.mean[k_max]), max_corner=grid.label(k_max),
+        ripple_a=float(np.max(res.hold.ripple)), current_step_a=th.lsb_a,
+        coil_power_w=float(np.max(res.coil_power)), coil_temp_c=float(res.coil_temp[k_hot]),
+        hottest_corner=grid.label(k_hot), discontinuous_corners=int(np.sum(res.hold.dcm)))
+
+    k_rel = dz._worst(res.release_time)
+    rating = drive.switch.max_voltage
+    settle_t = float(np.max(res.release_zero_time))
+    release = dz.ReleaseResult(
+        freewheel=drive.freewheel.type, dropout_current_a=drive.release.current,
+        time_s=float(res.release_time[k_rel]), zero_time_s=settle_t, worst_corner=grid.label(k_rel),
+        lockout_ticks=math.ceil(settle_t * tick_rate - 1e-9) + 1 if math.isfinite(settle_t) else 0,
+        peak_switch_voltage_v=float(np.max(res.peak_switch_voltage)),
+        switch_limit_v=rating * drive.switch.derating, switch_rating_v=rating,
+        energy_j=float(np.max(res.release_energy)))
+    peak_end_max = float(np.max(res.peak_end_current))
+    pull_in = dz.PullInResult(current_a=drive.pull_in.current, time_s=t_pull,
+                              worst_corner=grid.label(k_pull), margin=drive.pull_in.margin,
+                              peak_time_s=peak_time, peak_ticks=peak_ticks,
+                              peak_end_current_max_a=peak_end_max)
+    adc = board.adc
+    vpa = fallback.adc.volts_per_amp
+    over_a = dz.OVER_CURRENT_FACTOR * max(peak_end_max, float(np.max(res.hold.i_max)))
+    open_a = dz.OPEN_LOAD_FACTOR * hold.min_mean_current_a
+    thresholds = dataclasses.replace(
+        fallback.adc, over_current_a=over_a, open_load_a=open_a,
+        over_current_code=dz._adc_code(over_a * vpa, adc.reference, adc.bits),
+        open_load_code=dz._adc_code(open_a * vpa, adc.reference, adc.bits))
+
+    f_lo, f_hi, f_src = allowed_range(drive)
+    reg = cm.regulated
+    f = np.where(reg, cm.frequency, np.nan)
+    k_flo = int(np.nanargmin(f)) if np.any(reg) else 0
+    k_fhi = int(np.nanargmax(f)) if np.any(reg) else 0
+    segments = np.where(reg, np.minimum(cm.t_on, cm.t_off), np.inf)
+    hyst = th.control == "hysteretic"
+    result = CurrentModeResult(
+        control=th.control, sense_position=board.sense.position, code_current_a=th.lsb_a,
+        lower_code=th.lower_code if hyst else None, lower_a=th.lower_a if hyst else None,
+        upper_code=th.upper_code, upper_a=th.upper_a,
+        band_codes=th.upper_code - th.lower_code if hyst else None,
+        band_a=th.upper_a - th.lower_a if hyst else None,
+        off_time_s=None if hyst else th.off_time_s,
+        off_time_target_s=None if hyst else th.off_time_target_s,
+        off_prescaler=None if hyst else th.off_prescaler, off_ticks=None if hyst else th.off_ticks,
+        sized_from_frequency=th.sized, sense_delay_s=th.delay_s,
+        nominal_frequency_hz=hold.frequency_hz,
+        min_frequency_hz=float(f[k_flo]) if np.any(reg) else 0.0, min_frequency_corner=grid.label(k_flo),
+        max_frequency_hz=float(f[k_fhi]) if np.any(reg) else 0.0, max_frequency_corner=grid.label(k_fhi),
+        allowed_min_frequency_hz=f_lo, allowed_max_frequency_hz=f_hi, allowed_max_source=f_src,
+        min_duty=float(np.min(cm.duty)), max_duty=float(np.max(cm.duty)),
+        shortest_segment_s=float(np.min(segments)), regulated_corners=int(np.sum(reg)),
+        corners=len(grid))
+
+    setting = solve_timer(board.timer.clock, board.timer.bits, board.timer.prescaler_max,
+                          drive.hold.frequency, drive.hold.frequency_tolerance, board.timer.prescalers)
+    base = dz._checks(drive, grid, res, pull_in, hold, release, fallback.timer, thresholds, setting)
+    old = {c.name: c for c in fallback.checks}
+    voltage_only = ("timer_frequency", "duty_range", "duty_resolution")
+    checks = [c for c in base if c.name not in voltage_only + ("audible_frequency",)]
+    checks += _current_checks(drive, th, result, thresholds, res, cm, grid)
+    for name in voltage_only:
+        if name in old:
+            c = old[name]
+            checks.append(dataclasses.replace(c, detail="fixed-duty fallback: " + c.detail,
+                                              severity="warning"))
+    cautions = dz._cautions(drive, hold, release)
+    waveforms = {
+        "nominal": _waveform(drive, th, nom, 0, peak_time, "nominal"),
+        "worst": _waveform(drive, th, res, k_pull, peak_time, "worst pull-in: " + grid.label(k_pull)),
+    }
+    return dataclasses.replace(
+        fallback, drive=drive, pull_in=pull_in, hold=hold, release=release, adc=thresholds,
+        corners=corners, nominal=nominal, checks=checks, cautions=cautions, waveforms=waveforms,
+        input_hash=drive.input_hash(), worst_corner_index=k_pull,
+        extra={**fallback.extra, "current_mode": result, "current_thresholds": th})
+
+
+def _current_checks(drive: Drive, th: Thresholds, r: CurrentModeResult, adc, res: PointResults,
+                    cm: CurrentModeSteadyState, grid: CornerGrid):
+    from .design import Check
+
+    out = []
+    add = out.append
+    hyst = th.control == "hysteretic"
+    position = drive.board.sense.position
+    if hyst:
+        ok = position == "coil"
+        add(Check("current_mode_sense", ok,
+                  "hysteretic control reads the current while the switch is off: sense resistor in "
+                  "the coil path" if ok else
+                  "hysteretic control needs the current while the switch is off, but the sense "
+                  "resistor sits under the switch (it reads zero then, so the lower threshold would "
+                  "trip at once) — use control = \"off_time\" (a timed off time) or a coil-path sense"))
+    else:
+        add(Check("current_mode_sense", True,
+                  f"off-time control reads the peak while the switch is on: works with the sense "
+                  f"resistor in the {'coil path' if position == 'coil' else 'switch leg'}"))
+    a = res.loop.v_on / res.loop.r_on
+    k = int(np.argmin(a))
+    reg_ok = bool(np.all(cm.regulated))
+    what = "upper" if hyst else "peak"
+    add(Check("current_mode_regulated", reg_ok,
+              f"{what} threshold {th.upper_a:.4g} A vs the lowest full-on current {a[k]:.4g} A "
+              f"({grid.label(k)}); regulated at {r.regulated_corners} of {r.corners} corners"
+              + ("" if reg_ok else " — the current never reaches the threshold there: lower the band "
+                 "or raise the minimum supply")))
+    f_ok = reg_ok and r.allowed_min_frequency_hz <= r.min_frequency_hz and \
+        r.max_frequency_hz <= r.allowed_max_frequency_hz
+    hint = ""
+    if not f_ok and reg_ok:
+        wider = "widen hold.band" if hyst else "lengthen hold.off_time"
+        narrower = "narrow hold.band" if hyst else "shorten hold.off_time"
+        hint = (f" — {wider}" if r.max_frequency_hz > r.allowed_max_frequency_hz else f" — {narrower}")
+        if r.max_frequency_hz > r.allowed_max_frequency_hz and r.min_frequency_hz < r.allowed_min_frequency_hz:
+            hint = " — the corners spread wider than the allowed range: widen the range"
+    add(Check("current_mode_frequency", bool(f_ok),
+              f"switching {r.min_frequency_hz:.0f} Hz ({r.min_frequency_corner}) .. "
+              f"{r.max_frequency_hz:.0f} Hz ({r.max_frequency_corner}) vs allowed "
+              f"{r.allowed_min_frequency_hz:.0f}..{r.allowed_max_frequency_hz:.0f} Hz "
+              f"(upper end: {r.allowed_max_source}; 20 kHz lower default: the audible limit, common "
+              f"practice)" + hint))
+    full = 2**drive.board.adc.bits - 1
+    codes_ok = (th.upper_code <= full and th.upper_code < adc.over_current_code
+                and (not hyst or 1 <= th.lower_code < th.upper_code))
+    add(Check("current_mode_thresholds", bool(codes_ok),
+              (f"lower {th.lower_code} / upper {th.upper_code} codes" if hyst else f"peak {th.upper_code} code")
+              + f" ({th.lsb_a * 1e3:.4g} mA per code) vs over-current {adc.over_current_code} and full "
+              f"scale {full}" + ("" if codes_ok else " — thresholds out of the ADC's range or order")))
+    if not hyst:
+        t = drive.board.timer
+        err = (th.off_time_s - th.off_time_target_s) / th.off_time_target_s
+        ok = abs(err) <= drive.hold.frequency_tolerance and th.off_ticks >= 2
+        add(Check("current_mode_off_timer", bool(ok),
+                  f"off time {th.off_time_s * 1e6:.5g} us = {th.off_ticks} ticks at prescaler "
+                  f"{th.off_prescaler} of the {t.clock:.6g} Hz timer, for {th.off_time_target_s * 1e6:.5g} us "
+                  f"(error {err:+.3%}, allowed {drive.hold.frequency_tolerance:.2%})"))
+    sample = 1.0 / drive.board.adc.sample_rate
+    seg_ok = th.delay_s >= sample or r.shortest_segment_s >= MIN_SAMPLES_PER_SEGMENT * sample
+    add(Check("current_mode_sampling", bool(seg_ok),
+              f"shortest switching segment {r.shortest_segment_s * 1e6:.4g} us vs ADC sample period "
+              f"{sample * 1e6:.4g} us (sense_delay {th.delay_s * 1e6:.4g} us)"
+              + ("" if seg_ok else f" — fewer than {MIN_SAMPLES_PER_SEGMENT} samples per segment (our "
+                 "choice): a sampled threshold trips up to one sample late; give hold.sense_delay "
+                 "(e.g. one sample period) or use a comparator"), severity="warning"))
+    return out
+
+
+# --------------------------------------------------------------------------- waveform
+def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_temp: float,
+                           peak_time: float, hold_time: float, r_factor: float = 1.0,
+                           l_factor: float = 1.0, points: int = 8, label: str = ""):
+    """One actuation with the current-mode hold (closed-form segments, every switch edge a
+    sample): peak, hold for ``hold_time`` s (ending at a turn-off edge), release."""
+    from .model.waveform import Waveform
+
+    lp = loop(drive, supply, coil_temp, r_factor, l_factor)
+    v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
+    a, b = v / r_on, v_off / r_off
+    hyst = th.control == "hysteretic"
+    upper, lower, d = th.upper_a, th.lower_a, th.delay_s
+    big = 40 * points
+    ts, cs, ons = [], [], []
+
+    def on_seg(t0, i0, dur):
+        t = np.linspace(0.0, dur, points + 1)[1:]
+        ts.append(t0 + t)
+        cs.append(rise_current(t, i0, v, r_on, ind))
+        ons.append(np.ones_like(t))
+        return t0 + dur, float(cs[-1][-1])
+
+    def off_seg(t0, i0, dur, n=points):
+        t = np.linspace(0.0, dur, n + 1)[1:]
+        ts.append(t0 + t)
+        cs.append(decay_current(t, i0, r_off, v_off, ind))
+        ons.append(np.zeros_like(t))
+        return t0 + dur, float(cs[-1][-1])
+
+    tp = np.linspace(0.0, peak_time, big + 1)
+    ts.append(tp)
+    cs.append(rise_current(tp, 0.0, v, r_on, ind))
+    ons.append(np.ones_like(tp))
+    t, i = peak_time, float(cs[-1][-1])
+    end = peak_time + hold_time
+    regulated = upper < a
+    first = True
+    while t < end and regulated:
+        # off: to the lower threshold (+ delay) or for the fixed off time; the first one,
+        # down from the peak, gets as many samples as the peak
+        dur = float(decay_time(lower, i, r_off, v_off, ind)) + d if hyst else th.off_time_s
+        t, i = off_seg(t, i, dur, big if first else points)
+        first = False
+        # on: to the upper/peak threshold, + delay (none while the current is still above
+        # the peak threshold after the peak phase: the switch turns straight off again)
+        dur = float(rise_time(upper, i, v, r_on, ind)) + d
+        if dur > 0:
+            t, i = on_seg(t, i, dur)
+    if not regulated:
+        t, i = on_seg(t, i, hold_time)
+    t_off_edge = t
+    tz = float(decay_time(0.0, i, r_off, v_off, ind))
+    td = np.linspace(0.0, tz, big + 1)[1:]
+    ts.append(t_off_edge + td)
+    cs.append(decay_current(td, i, r_off, v_off, ind))
+    ons.append(np.zeros_like(td))
+    time = np.concatenate(ts)
+    current = np.concatenate(cs)
+    on = np.concatenate(ons).astype(np.int8)
+    v_sw = np.where(on == 1, current * drive.switch.on_resistance,
+                    np.where(current > 0, lp.switch_voltage(drive, current), float(supply)))
+    sense = current if drive.board.sense.position == "coil" else current * on
+    events = {"on": 0.0, "hold": peak_time, "off": t_off_edge, "zero": t_off_edge + tz}
+    return Waveform(time, current, on, v_sw, sense, events, label)
+
+
+def _waveform(drive: Drive, th: Thresholds, res: PointResults, k: int, peak_time: float, label: str):
+    temp = float(res.coil_temp[k]) if math.isfinite(res.coil_temp[k]) else drive.thermal.max_coil_temp
+    period = float(res.hold.period[k]) if np.isfinite(res.hold.period[k]) else 1e-4
+    hold_time = max(2.0 * peak_time, 20.0 * period)
+    return current_mode_actuation(drive, th, float(res.supply[k]), temp, peak_time, hold_time,
+                                  float(res.r_factor[k]), float(res.l_factor[k]), label=label)
+
+
+# --------------------------------------------------------------------------- outputs
+def header_constants(design, macro: str):
+    """Extra header macros of a current-mode design (empty for voltage mode)."""
+    from .codegen.header import Constant
+
+    r = design.extra.get("current_mode")
+    if r is None:
+        return []
+    m = macro
+    if r.control == "hysteretic":
+        return [
+            Constant(f"{m}_HOLD_HYSTERETIC", 1, "current-mode hold: hysteretic band"),
+            Constant(f"{m}_HOLD_LOWER_CODE", r.lower_code, f"switch on below {r.lower_a:.4g} A"),
+            Constant(f"{m}_HOLD_UPPER_CODE", r.upper_code, f"switch off at or above {r.upper_a:.4g} A"),
+        ]
+    return [
+        Constant(f"{m}_HOLD_OFF_TIME", 1, "current-mode hold: peak threshold + fixed off time"),
+        Constant(f"{m}_HOLD_PEAK_CODE", r.upper_code, f"switch off at or above {r.upper_a:.4g} A"),
+        Constant(f"{m}_HOLD_OFF_PRESCALER", r.off_prescaler, "off-time timer divide ratio"),
+        Constant(f"{m}_HOLD_OFF_TICKS", r.off_ticks, f"off time {r.off_time_s * 1e6:.5g} us"),
+    ]
+
+
+def relabel_fallback(design, macro: str, constants: list) -> list:
+    """In a current-mode header, say that the PWM compare and frequency are the fixed-duty
+    fallback (voltage-mode headers are returned unchanged)."""
+    if "current_mode" not in design.extra:
+        return constants
+    fallback = design.timer.compare_ticks / design.timer.period_ticks
+    notes = {f"{macro}_HOLD_COMPARE_TICKS": f"fixed-duty fallback: on-time counts (duty {fallback:.4f})",
+             f"{macro}_HOLD_FREQUENCY_HZ": f"fixed-duty fallback PWM frequency ({design.timer.frequency_hz:.6g} Hz)"}
+    return [dataclasses.replace(c, comment=notes[c.name]) if c.name in notes else c for c in constants]
+
+
+def header_summary(design) -> list[str]:
+    """Summary lines of the current-mode hold for the header comment (empty for voltage)."""
+    r = design.extra.get("current_mode")
+    if r is None:
+        return []
+    what = (f"hysteretic {r.lower_a:.4g}..{r.upper_a:.4g} A" if r.control == "hysteretic" else
+            f"peak {r.upper_a:.4g} A, off {r.off_time_s * 1e6:.5g} us")
+    return [f"current   mode hold, {what}: switching {r.min_frequency_hz:.5g}..{r.max_frequency_hz:.5g} Hz "
+            f"over the corners (nominal {r.nominal_frequency_hz:.5g} Hz); the PWM compare and duty "
+            "table below are the fixed-duty fallback"]
+
+
+def header_checks(design, macro: str) -> list[tuple[str, str]]:
+    """``(condition, message)`` pairs for ``#if ... #error`` in a current-mode header."""
+    r = design.extra.get("current_mode")
+    if r is None:
+        return []
+    m = macro
+    if r.control == "hysteretic":
+        return [(f"{m}_HOLD_LOWER_CODE >= {m}_HOLD_UPPER_CODE || {m}_HOLD_LOWER_CODE < 1",
+                 "hysteretic thresholds out of order"),
+                (f"{m}_HOLD_UPPER_CODE >= {m}_ADC_OVER_CURRENT_CODE",
+                 "upper hold threshold at or above the over-current threshold")]
+    return [(f"{m}_HOLD_PEAK_CODE >= {m}_ADC_OVER_CURRENT_CODE",
+             "peak hold threshold at or above the over-current threshold"),
+            (f"{m}_HOLD_OFF_TICKS < 2 || {m}_HOLD_OFF_TICKS - 1U > {m}_TIMER_COUNTER_MAX",
+             "off time does not fit the timer counter"),
+            (f"{m}_HOLD_OFF_PRESCALER < 1 || {m}_HOLD_OFF_PRESCALER > {m}_TIMER_PRESCALER_MAX",
+             "off-time prescaler outside the timer's range")]
+
+
+def current_mode_table(design):
+    """rich table of the current-mode thresholds and switching range."""
+    from rich.table import Table
+
+    r = design.extra["current_mode"]
+    t = Table(title=f"current-mode hold ({r.control})")
+    t.add_column("figure")
+    t.add_column("value", justify="right")
+    t.add_column("where / how")
+    if r.control == "hysteretic":
+        t.add_row("thresholds", f"{r.lower_code} / {r.upper_code} codes",
+                  f"{r.lower_a:.4g} / {r.upper_a:.4g} A, band {r.band_codes} codes"
+                  + (" (sized from hold.frequency)" if r.sized_from_frequency else ""))
+    else:
+        t.add_row("peak threshold", f"{r.upper_code} code", f"{r.upper_a:.4g} A")
+        t.add_row("off time", f"{r.off_time_s * 1e6:.5g} us",
+                  f"{r.off_ticks} ticks at prescaler {r.off_prescaler}"
+                  + (" (sized from hold.frequency)" if r.sized_from_frequency else ""))
+    t.add_row("switching frequency", f"{r.min_frequency_hz:.0f} .. {r.max_frequency_hz:.0f} Hz",
+              f"nominal {r.nominal_frequency_hz:.0f} Hz; allowed {r.allowed_min_frequency_hz:.0f}.."
+              f"{r.allowed_max_frequency_hz:.0f} Hz")
+    t.add_row("switch-on fraction", f"{r.min_duty:.3f} .. {r.max_duty:.3f}", "over the corners")
+    t.add_row("sense", r.sense_position, f"delay {r.sense_delay_s * 1e6:.3g} us; one code "
+              f"{r.code_current_a * 1e3:.4g} mA")
+    return t

@@ -1,0 +1,432 @@
+"""One operating point of the moving-armature model through any switch schedule.
+
+The armature is in one of three states:
+
+* ``open``   -- resting on the open stop (x = stroke); ``L`` is constant, so the current
+  is the closed-form RL segment with the open inductance. It leaves the stop when the
+  magnetic force exceeds spring preload + load (``lambda > lambda_start``).
+* ``seated`` -- resting on the seat (x = 0); closed form with the closed inductance. It
+  leaves when the force falls below the spring + load at the seat
+  (``lambda < lambda_stay``).
+* ``free``   -- moving: the ODE of :mod:`coildrive.model.armature`, integrated until it
+  hits a stop, the current reaches zero with the switch off, or the segment ends.
+
+Two integrators can drive the ``free`` state: ``"numpy"`` (the batched Dormand-Prince
+integrator of :mod:`coildrive.model.armature`, one point) and any scipy ``solve_ivp``
+method name (``"RK45"``, ``"DOP853"``, ``"Radau"``, ``"BDF"``, ``"LSODA"``), with terminal
+events for the stops -- the per-point reference the batched model is checked against.
+scipy is imported only when one of its methods is asked for.
+
+Units: SI (s, A, V*s, m, m/s).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .armature import (BOUND, MAX_BOUNCES, OPEN, REST_FRACTION, SEAT, ZERO, ArmatureParams,
+                       _hermite, _Rhs, _time_bound, fly, is_stiff)
+from .rl import decay_current, decay_integrals, decay_time, rise_current, rise_integrals, rise_time
+
+#: Default scipy tolerances of the reference path (relative; absolute = rtol x scale).
+REFERENCE_RTOL = 1e-10
+#: An integrated piece keeps at most this many times its sample count of solver steps.
+THIN = 8
+
+
+@dataclass
+class Trajectory:
+    """A simulated run: samples (s, V*s, m, m/s, 0/1, A*s, A^2*s) and the moments.
+
+    ``events`` maps names to times in s: ``move`` (leaves the open stop), ``impact``
+    (first touch of the seat; the current dip), ``seat`` (at rest on the seat),
+    ``unlatch`` (leaves the seat), ``open`` (at rest on the open stop), ``zero`` (the
+    current reaches zero); ``dip_current`` is the current at the impact in A. ``log``
+    lists every transition as ``(time, name)``; ``impacts`` every arrival at a stop as
+    ``(time, stop, speed before, speed after)`` (m/s; ``stop`` is ``"seat"`` or
+    ``"open"``) -- the kinetic energy lost there is ``m (before^2 - after^2) / 2``.
+    """
+
+    time: np.ndarray
+    flux: np.ndarray
+    position: np.ndarray
+    velocity: np.ndarray
+    switch_on: np.ndarray
+    charge: np.ndarray
+    square: np.ndarray
+    current: np.ndarray
+    events: dict = field(default_factory=dict)
+    log: list = field(default_factory=list)
+    impacts: list = field(default_factory=list)
+    state: str = ""
+    stopped: bool = False
+
+
+class _Point:
+    """Scalar view of a one-point :class:`ArmatureParams` plus the stop thresholds."""
+
+    def __init__(self, p: ArmatureParams):
+        if len(p) != 1:
+            raise ValueError("armature_sim works on one operating point at a time")
+        self.p = p
+        for name in p.__dataclass_fields__:
+            setattr(self, name, float(getattr(p, name)[0]))
+        self.l_open = float(p.l_open[0])
+        self.i_start = float(p.start_current[0])
+        self.i_stay = float(p.stay_current[0])
+        self.lam_start = self.l_open * self.i_start
+        self.lam_stay = self.l_closed * self.i_stay
+        self.scales = p.reference_scales()[:, 0]
+        i_inf = self.v_on / self.r_on
+        f_inf = 0.5 * i_inf**2 * self.l_closed * self.beta / (1 + self.beta * self.stroke) ** 2
+        weakest = min(self.preload + self.load, max(f_inf - self.preload - self.load, 1e-300))
+        self.stiff = bool(is_stiff(p, weakest)[0])
+
+    def current(self, lam, x):
+        return lam * (1.0 + self.beta * x) / self.l_closed
+
+
+class _Run:
+    """Mutable state of a simulation and its sample lists."""
+
+    def __init__(self, pt: _Point, t: float, y: np.ndarray, state: str, live: bool):
+        self.pt = pt
+        self.t = t
+        self.y = y.astype(float).copy()
+        self.state = state
+        self.live = live
+        self.impact_speed = math.nan
+        self.bounces = 0
+        self.events: dict = {}
+        self.log: list = []
+        self.impacts: list = []
+        self.chunks: list = []  # (t, y(5 x k), on)
+
+    def emit(self, ts, ys, on):
+        self.chunks.append((np.atleast_1d(ts), np.atleast_2d(ys).reshape(5, -1), on))
+
+    def mark(self, name: str, first_only: bool = True):
+        if not (first_only and name in self.events):
+            self.events[name] = self.t
+        self.log.append((self.t, name))
+
+
+def _rest_segment(run: _Run, t_end: float, on: bool, points: int, stop) -> None:
+    """Advance a resting armature (open or seated) in closed form until it leaves its
+    stop, the current reaches zero, or ``t_end``."""
+    pt = run.pt
+    seated = run.state == "seated"
+    ind = pt.l_closed if seated else pt.l_open
+    x = 0.0 if seated else pt.stroke
+    i0 = pt.current(run.y[0], x)
+    if on:
+        run.live = True
+        # seated: the current rises, the armature stays (unless below the stay current)
+        if seated:
+            if i0 < pt.i_stay:
+                run.state = "free"
+                return
+            t_leave = math.inf
+        else:
+            t_leave = 0.0 if run.y[0] > pt.lam_start else float(
+                rise_time(pt.i_start, i0, pt.v_on, pt.r_on, pt.l_open))
+    else:
+        if not run.live or i0 <= 0.0:
+            run.live = False
+            i0 = 0.0
+        if seated:
+            t_leave = 0.0 if i0 <= pt.i_stay else float(
+                decay_time(pt.i_stay, i0, pt.r_off, pt.v_off, pt.l_closed))
+        else:
+            t_leave = math.inf
+    dt = min(t_leave, t_end - run.t)
+    t_zero = math.inf
+    if not on and run.live:
+        t_zero = float(decay_time(0.0, i0, pt.r_off, pt.v_off, ind))
+        dt = min(dt, t_zero)
+    if dt > 0:
+        s = np.linspace(0.0, dt, max(points, 2))[1:]
+        if on:
+            i = rise_current(s, i0, pt.v_on, pt.r_on, ind)
+            q, sq = rise_integrals(s, i0, pt.v_on, pt.r_on, ind)
+        elif run.live:
+            i = decay_current(s, i0, pt.r_off, pt.v_off, ind)
+            q, sq = decay_integrals(np.minimum(s, t_zero), i0, pt.r_off, pt.v_off, ind)
+        else:
+            i = np.zeros_like(s)
+            q = sq = np.zeros_like(s)
+        ys = np.stack([i * ind, np.full_like(s, x), np.zeros_like(s), run.y[3] + q, run.y[4] + sq])
+        run.emit(run.t + s, ys, on)
+        run.t += dt
+        run.y = ys[:, -1].copy()
+    if dt == t_zero and not on and run.live:
+        run.live = False
+        run.y[0] = 0.0
+        run.mark("zero")
+        if stop(run):
+            return
+    if dt == t_leave and run.t < t_end + 1e-18:
+        if seated:
+            run.y[0] = pt.lam_stay * (1.0 - 1e-12) if run.live else 0.0
+            run.state = "free"
+            run.mark("unlatch")
+        else:
+            run.y[0] = pt.lam_start * (1.0 + 1e-12)
+            run.state = "free"
+            run.mark("move")
+
+
+def _fly_numpy(run: _Run, t_end: float, on: bool, rtol: float, dense: int):
+    pt = run.pt
+    fl = fly(pt.p, np.array([run.t]), run.y[:, None], np.array([t_end]), np.array([True]),
+             np.array([on]), np.array([run.live]), rtol, record=True, stiff=pt.stiff)
+    ts = np.array([a[0] for a in fl.path_t[1:]])
+    ys = np.array([a[:, 0] for a in fl.path_y[1:]]).T if len(fl.path_y) > 1 else np.zeros((5, 0))
+    keep = np.isfinite(ts)
+    ts, ys = ts[keep], ys[:, keep]
+    code = int(fl.end[0])
+    if dense > 1 and ts.size:
+        # fill in between the steps with the cubic Hermite interpolant of the state
+        rhs = _Rhs(pt.p, np.array([on]), np.array([run.live]))
+        knots_t = np.concatenate([[run.t], ts])
+        knots_y = np.concatenate([run.y[:, None], ys], axis=1)
+        knots_d = rhs(knots_y)
+        grid = np.linspace(run.t, ts[-1], dense + 1)[1:-1]
+        grid = grid[~np.isin(grid, ts)]
+    if dense > 1 and ts.size and grid.size:
+        j = np.clip(np.searchsorted(knots_t, grid, side="right") - 1, 0, knots_t.size - 2)
+        h = knots_t[j + 1] - knots_t[j]
+        theta = np.where(h > 0, (grid - knots_t[j]) / np.where(h > 0, h, 1.0), 0.0)
+        yg = _hermite(knots_y[:, j], knots_y[:, j + 1], knots_d[:, j], knots_d[:, j + 1], h, theta)
+        order = np.argsort(np.concatenate([ts, grid]), kind="stable")
+        ts = np.concatenate([ts, grid])[order]
+        ys = np.concatenate([ys, yg], axis=1)[:, order]
+    return ts, ys, code, float(fl.t[0]), fl.y[:, 0].copy()
+
+
+def _fly_scipy(run: _Run, t_end: float, on: bool, method: str, rtol: float, dense: int):
+    from scipy.integrate import solve_ivp
+
+    pt = run.pt
+    rhs = _Rhs(pt.p, np.array([on]), np.array([run.live]))
+
+    def fun(_t, y):
+        return rhs(y[:, None])[:, 0]
+
+    # A stop counts once passed by a band of 1e-9 stroke: an implicit solver's first step
+    # off a stop may cross it back by rounding, which must not end the flight at once.
+    band = 1e-9 * pt.stroke
+
+    def seat(_t, y):
+        return y[1] + band
+    seat.terminal, seat.direction = True, -1
+
+    def opened(_t, y):
+        return pt.stroke + band - y[1]
+    opened.terminal, opened.direction = True, -1
+
+    def zero(_t, y):
+        return y[0]
+    zero.terminal, zero.direction = True, -1
+
+    events = [seat, opened] + ([zero] if (not on and run.live) else [])
+    span = t_end - run.t
+    i_ref = pt.scales[0] / pt.l_closed
+    atol = rtol * np.concatenate([pt.scales, [i_ref * span, i_ref * i_ref * span]])
+    sol = solve_ivp(fun, (run.t, t_end), run.y, method=method, rtol=rtol, atol=atol,
+                    events=events, dense_output=dense > 1)
+    if sol.status == -1:
+        raise RuntimeError(f"solve_ivp ({method}) failed: {sol.message}")
+    code = BOUND
+    t_hit, y_hit = float(sol.t[-1]), sol.y[:, -1].copy()
+    if sol.status == 1:
+        best = math.inf
+        for k, c in enumerate((SEAT, OPEN, ZERO)[:len(events)]):
+            if len(sol.t_events[k]) and sol.t_events[k][0] < best:
+                best = float(sol.t_events[k][0])
+                code, t_hit, y_hit = c, best, sol.y_events[k][0].copy()
+    keep = sol.t < t_hit
+    ts = np.append(sol.t[keep][1:], t_hit)
+    ys = np.concatenate([sol.y[:, keep][:, 1:], y_hit[:, None]], axis=1)
+    grid = np.linspace(run.t, t_hit, dense + 1)[1:-1] if dense > 1 and t_hit > run.t else np.zeros(0)
+    grid = grid[~np.isin(grid, ts)]
+    if grid.size:
+        order = np.argsort(np.concatenate([ts, grid]), kind="stable")
+        ts = np.concatenate([ts, grid])[order]
+        ys = np.concatenate([ys, sol.sol(grid)], axis=1)[:, order]
+    if code == SEAT:
+        y_hit[1] = 0.0
+    elif code == OPEN:
+        y_hit[1] = pt.stroke
+    elif code == ZERO:
+        y_hit[0] = 0.0
+    ys[:, int(np.argmax(ts))] = y_hit
+    return ts, ys, code, t_hit, y_hit
+
+
+def _free_segment(run: _Run, t_end: float, on: bool, method: str, rtol: float, dense: int) -> None:
+    pt = run.pt
+    if on:
+        run.live = True
+    if method == "numpy":
+        ts, ys, code, t1, y1 = _fly_numpy(run, t_end, on, rtol, dense)
+    else:
+        ts, ys, code, t1, y1 = _fly_scipy(run, t_end, on, method, rtol, dense)
+    if ts.size > THIN * max(dense, 2):
+        # a long, finely stepped flight (stiff damping): keep evenly spread steps and the end
+        keep = np.unique(np.linspace(0, ts.size - 1, THIN * max(dense, 2)).round().astype(int))
+        ts, ys = ts[keep], ys[:, keep]
+    if ts.size:
+        run.emit(ts, ys, on)
+    run.t, run.y = t1, y1
+    v_before = abs(float(run.y[2]))
+    if code == SEAT:
+        v = -run.y[2]
+        first = math.isnan(run.impact_speed)
+        if first:
+            run.impact_speed = v
+            run.events["dip_current"] = pt.current(run.y[0], 0.0)
+            run.mark("impact")
+        rebound = pt.restitution * abs(run.y[2])
+        if rebound > 0 and rebound >= REST_FRACTION * run.impact_speed and run.bounces < MAX_BOUNCES:
+            run.bounces += 1
+            run.y[2] = rebound
+            run.mark("bounce", first_only=False)
+        else:
+            run.y[2] = 0.0
+            if run.y[0] >= pt.lam_stay:
+                run.state = "seated"
+                run.mark("seat", first_only=False)
+        run.impacts.append((run.t, "seat", v_before, abs(float(run.y[2]))))
+    elif code == OPEN:
+        run.y[2] = 0.0
+        run.impacts.append((run.t, "open", v_before, 0.0))
+        if run.y[0] <= pt.lam_start:
+            run.state = "open"
+            run.mark("open", first_only=False)
+    elif code == ZERO:
+        run.live = False
+        run.y[0] = 0.0
+        run.mark("zero")
+
+
+def simulate(p: ArmatureParams, schedule, state: str = "open", flux: float = 0.0,
+             method: str = "numpy", rtol: float | None = None, points: int = 40, stop=None,
+             t0: float = 0.0) -> Trajectory:
+    """Simulate one point through ``schedule``: segments ``(t_end, switch_on)`` or
+    ``(t_end, switch_on, samples)``, in time order.
+
+    Parameters
+    ----------
+    p : parameters of one point; state : ``"open"`` or ``"seated"`` at ``t0``
+    flux : flux linkage at ``t0`` in V*s (0: no current)
+    method : ``"numpy"`` or a scipy ``solve_ivp`` method name
+    rtol : relative tolerance (default 1e-8 numpy, :data:`REFERENCE_RTOL` scipy)
+    points : samples per piece of a segment that gives no count (closed-form pieces get
+        that many, integrated pieces at least that many)
+    stop : ``stop(run) -> bool``, checked after every transition, ends the run early
+    """
+    pt = _Point(p)
+    if rtol is None:
+        rtol = 1e-8 if method == "numpy" else REFERENCE_RTOL
+    if state not in ("open", "seated"):
+        raise ValueError(f"state {state!r}: expected 'open' or 'seated'")
+    x0 = pt.stroke if state == "open" else 0.0
+    run = _Run(pt, t0, np.array([flux, x0, 0.0, 0.0, 0.0]), state, flux > 0)
+    stop = stop or (lambda r: False)
+    run.emit(t0, run.y, bool(schedule[0][1]) if schedule else False)
+    guard = 0
+    stopped = False
+    limit = 10 * MAX_BOUNCES + 4 * len(schedule) + 100
+    for seg in schedule:
+        t_end, on = float(seg[0]), bool(seg[1])
+        n = int(seg[2]) if len(seg) > 2 else points
+        while run.t < t_end and not stopped:
+            guard += 1
+            if guard > limit:
+                raise RuntimeError("armature simulation did not settle (too many transitions)")
+            before = (run.state, len(run.log))
+            if run.state == "free":
+                _free_segment(run, t_end, on, method, rtol, n)
+            else:
+                _rest_segment(run, t_end, on, n, stop)
+            if len(run.log) != before[1] or run.state != before[0]:
+                stopped = stop(run)
+        if stopped:
+            break
+    ts = np.concatenate([c[0] for c in run.chunks])
+    ys = np.concatenate([c[1] for c in run.chunks], axis=1)
+    if ts[-1] == run.t:
+        ys[:, -1] = run.y  # a run ending on a stop ends with the state after the stop
+    ons = np.concatenate([np.full(c[0].size, int(c[2])) for c in run.chunks]).astype(np.int8)
+    cur = pt.current(ys[0], ys[1])
+    return Trajectory(time=ts, flux=ys[0], position=ys[1], velocity=ys[2], switch_on=ons,
+                      charge=ys[3], square=ys[4], current=np.maximum(cur, 0.0),
+                      events=dict(run.events), log=list(run.log), impacts=list(run.impacts),
+                      state=run.state, stopped=stopped)
+
+
+# --------------------------------------------------------------------------- references
+@dataclass(frozen=True)
+class PullInReference:
+    """Per-point pull-in figures (s, A) from :func:`pull_in_reference`."""
+
+    seated: bool
+    start_time: float
+    impact_time: float
+    dip_current: float
+    seat_time: float
+    trajectory: Trajectory
+
+
+def pull_in_reference(p: ArmatureParams, method: str = "DOP853", rtol: float | None = None,
+                      points: int = 40) -> PullInReference:
+    """Switch on from rest at the open stop until the armature rests on the seat (or the
+    same bound as :func:`coildrive.model.armature.pull_in`)."""
+    pt = _Point(p)
+    i_inf = pt.v_on / pt.r_on
+    if not i_inf > pt.i_start:
+        nan = math.nan
+        empty = simulate(p, [], method=method, rtol=rtol)
+        return PullInReference(False, math.inf, nan, nan, math.inf, empty)
+    t_start = float(rise_time(pt.i_start, 0.0, pt.v_on, pt.r_on, pt.l_open))
+    f_inf = 0.5 * i_inf**2 * pt.l_closed * pt.beta / (1 + pt.beta * pt.stroke) ** 2 - (pt.preload + pt.load)
+    bound = float(_time_bound(t_start, pt.l_closed, pt.r_on, pt.mass, pt.stroke, pt.damping, f_inf))
+    tr = simulate(p, [(bound, True)], method=method, rtol=rtol, points=points,
+                  stop=lambda r: r.state == "seated")
+    ev = tr.events
+    return PullInReference(tr.state == "seated", ev.get("move", math.nan), ev.get("impact", math.nan),
+                           ev.get("dip_current", math.nan), ev.get("seat", math.inf) if tr.state == "seated" else math.inf,
+                           tr)
+
+
+@dataclass(frozen=True)
+class ReleaseReference:
+    """Per-point release figures (s, A*s, A^2*s) from :func:`release_reference`."""
+
+    opened: bool
+    unlatch_time: float
+    open_time: float
+    zero_time: float
+    charge: float
+    square: float
+    trajectory: Trajectory
+
+
+def release_reference(p: ArmatureParams, i_off: float, method: str = "DOP853",
+                      rtol: float | None = None, points: int = 40) -> ReleaseReference:
+    """Turn off ``i_off`` A with the armature seated; run until it rests on the open stop
+    and the current is zero (or the bound of :func:`coildrive.model.armature.release`)."""
+    pt = _Point(p)
+    t_un = float(decay_time(min(pt.i_stay, i_off), i_off, pt.r_off, pt.v_off, pt.l_closed)) if i_off > pt.i_stay else 0.0
+    bound = float(_time_bound(t_un, pt.l_closed, pt.r_off, pt.mass, pt.stroke, pt.damping,
+                              pt.preload + pt.load))
+    tr = simulate(p, [(bound, False)], state="seated", flux=pt.l_closed * i_off, method=method,
+                  rtol=rtol, points=points,
+                  stop=lambda r: r.state == "open" and not r.live)
+    ev = tr.events
+    return ReleaseReference(tr.state == "open", ev.get("unlatch", 0.0), ev.get("open", math.inf),
+                            ev.get("zero", math.inf), float(tr.charge[-1]), float(tr.square[-1]), tr)

@@ -1,0 +1,150 @@
+"""Exact periodic steady state of a current-mode hold: hysteretic band or fixed off-time.
+
+Both controls switch the same two RL segments as the PWM hold (see
+:mod:`coildrive.model.rl`); what ends each segment is a current threshold instead of a
+timer:
+
+* **hysteretic** -- switch off when the current reaches the upper threshold ``I_hi``,
+  on again when it falls to the lower one ``I_lo``. Between the thresholds the RL
+  charge and discharge take (RL step response solved for the time)::
+
+      t_on  = tau_on  ln((A - I_lo) / (A - I_hi)),   A = V / R_on,     tau_on  = L / R_on
+      t_off = tau_off ln((I_hi + B) / (I_lo + B)),   B = V_off / R_off, tau_off = L / R_off
+
+  and the switching frequency is ``1 / (t_on + t_off)`` (derived here from the RL step
+  ``i(t) = a + (i0 - a) e^(-t/tau)``; the same expressions are in the usual
+  treatments of hysteretic current control, from memory). The controller must see the
+  current while the switch is off: it needs the sense resistor in the coil path.
+* **off_time** -- switch off when the current reaches the peak threshold ``I_pk``, stay
+  off for a fixed, timer-made ``t_off``, then on again. The bottom of the ripple is
+  ``(I_pk + B) e^(-t_off / tau_off) - B`` (zero if the current dies out first: the
+  diode blocks) and ``t_on = tau_on ln((A - I_bot) / (A - I_pk))``. The peak is seen
+  while the switch is on, so it works with the sense resistor under the switch too,
+  and each period's bottom depends on the peak alone (no sub-harmonic instability).
+
+``delay`` is the time from a threshold crossing to the switch edge (comparator, ADC
+conversion, interrupt latency): the current runs on for that long past each threshold,
+so the ripple's top is ``A + (I_hi - A) e^(-delay/tau_on)`` and the bottom the decay
+from ``I_lo`` for ``delay`` (stopping at zero).
+
+Where the upper (or peak) threshold is at or above ``V / R_on`` the current never gets
+there: the switch stays on and the coil carries ``V / R_on`` (``regulated`` is False;
+the integrals are then those of that direct current over a 1 s window, ``frequency`` is
+zero and ``duty`` one).
+
+All functions broadcast over numpy arrays; units A, V, ohm, H, s, Hz.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .pwm import PwmSteadyState
+from .rl import decay_integrals, decay_time, rise_integrals, rise_time
+
+CONTROLS = ("hysteretic", "off_time")
+
+
+@dataclass(frozen=True)
+class CurrentModeSteadyState:
+    """Periodic steady state of a current-mode hold (arrays). A, s, Hz, A*s, A^2*s.
+
+    ``i_min``/``i_max`` are the bottom and top of the ripple (the thresholds moved by
+    the delay); ``t_on``/``t_off`` the switch on and off times, ``conduction_off`` the
+    part of ``t_off`` with current flowing; ``dcm`` marks a current that dies out
+    during the off time.
+    """
+
+    i_min: np.ndarray
+    i_max: np.ndarray
+    mean: np.ndarray
+    rms: np.ndarray
+    ripple: np.ndarray
+    t_on: np.ndarray
+    t_off: np.ndarray
+    period: np.ndarray
+    frequency: np.ndarray
+    duty: np.ndarray
+    regulated: np.ndarray
+    dcm: np.ndarray
+    conduction_off: np.ndarray
+    charge_on: np.ndarray
+    square_on: np.ndarray
+    charge_off: np.ndarray
+    square_off: np.ndarray
+
+    def as_pwm(self) -> PwmSteadyState:
+        """The same steady state in the voltage-mode container (same field meanings), so
+        the loss and report code reads both."""
+        return PwmSteadyState(i_min=self.i_min, i_max=self.i_max, mean=self.mean, rms=self.rms,
+                              ripple=self.ripple, dcm=self.dcm, conduction_off=self.conduction_off,
+                              period=self.period, charge_on=self.charge_on, square_on=self.square_on,
+                              charge_off=self.charge_off, square_off=self.square_off)
+
+
+def _finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, inductance, regulated):
+    a = v_on / r_on
+    # unregulated: the switch stays on and the coil carries V/R_on (1 s window of DC)
+    bottom = np.where(regulated, bottom, a)
+    top = np.where(regulated, top, a)
+    t_on = np.where(regulated, t_on, 1.0)
+    t_off = np.where(regulated, t_off, 0.0)
+    conduction = np.where(regulated, conduction, 0.0)
+    period = t_on + t_off
+    q_on, s_on = rise_integrals(t_on, bottom, v_on, r_on, inductance)
+    q_off, s_off = decay_integrals(conduction, top, r_off, v_off, inductance)
+    mean = (q_on + q_off) / period
+    rms = np.sqrt(np.maximum((s_on + s_off) / period, 0.0))
+    frequency = np.where(regulated, 1.0 / period, 0.0)
+    return CurrentModeSteadyState(
+        i_min=bottom, i_max=top, mean=mean, rms=rms, ripple=top - bottom, t_on=t_on, t_off=t_off,
+        period=period, frequency=frequency, duty=t_on / period, regulated=regulated,
+        dcm=regulated & (conduction < t_off), conduction_off=conduction, charge_on=q_on,
+        square_on=s_on, charge_off=q_off, square_off=s_off)
+
+
+def hysteretic_steady_state(i_lo, i_hi, v_on, r_on, r_off, v_off, inductance,
+                            delay=0.0) -> CurrentModeSteadyState:
+    """Hysteretic band ``i_lo``..``i_hi`` A (``0 <= i_lo < i_hi``), ``delay`` s per edge.
+
+    Loop arguments as :func:`coildrive.model.pwm.pwm_steady_state` (V, ohm, H; ``v_off``
+    > 0 opposes the freewheeling current).
+    """
+    i_lo, i_hi, v_on, r_on, r_off, v_off, inductance, delay = np.broadcast_arrays(
+        *(np.asarray(x, float) for x in (i_lo, i_hi, v_on, r_on, r_off, v_off, inductance, delay)))
+    a = v_on / r_on
+    regulated = i_hi < a
+    hi = np.where(regulated, i_hi, 0.5 * a)  # any level below A where unregulated: _finish replaces those
+    lo = np.minimum(i_lo, hi)
+    top = a + (hi - a) * np.exp(-delay * r_on / inductance)
+    down = decay_time(lo, top, r_off, v_off, inductance)           # top -> I_lo
+    to_zero = decay_time(0.0, lo, r_off, v_off, inductance)        # I_lo -> 0
+    bottom = np.where(delay < to_zero,
+                      (lo + v_off / r_off) * np.exp(-delay * r_off / inductance) - v_off / r_off, 0.0)
+    bottom = np.maximum(bottom, 0.0)
+    conduction = down + np.minimum(delay, to_zero)
+    t_off = down + delay
+    t_on = rise_time(hi, bottom, v_on, r_on, inductance) + delay
+    return _finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, inductance,
+                   regulated)
+
+
+def off_time_steady_state(i_peak, t_off, v_on, r_on, r_off, v_off, inductance,
+                          delay=0.0) -> CurrentModeSteadyState:
+    """Peak threshold ``i_peak`` A, fixed off time ``t_off`` s, ``delay`` s to turn off."""
+    i_peak, t_off, v_on, r_on, r_off, v_off, inductance, delay = np.broadcast_arrays(
+        *(np.asarray(x, float) for x in (i_peak, t_off, v_on, r_on, r_off, v_off, inductance, delay)))
+    a = v_on / r_on
+    b = v_off / r_off
+    regulated = i_peak < a
+    pk = np.where(regulated, i_peak, 0.5 * a)
+    top = a + (pk - a) * np.exp(-delay * r_on / inductance)
+    to_zero = decay_time(0.0, top, r_off, v_off, inductance)
+    bottom = np.maximum((top + b) * np.exp(-t_off * r_off / inductance) - b, 0.0)
+    bottom = np.where(t_off < to_zero, bottom, 0.0)
+    conduction = np.minimum(t_off, to_zero)
+    t_on = rise_time(pk, np.minimum(bottom, pk), v_on, r_on, inductance) + delay
+    return _finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, inductance,
+                   regulated)

@@ -1,0 +1,211 @@
+"""`check` and `fit` on synthetic captures, as a library and as an end-of-line command.
+
+Reference for the fit: the coil the synthetic capture was made with. Its resistance at
+temperature follows IEC 60028 copper (alpha = 0.00393 /K); the fit itself is a
+least-squares fit (scipy.optimize.least_squares, trust-region reflective) of the
+textbook RL step response i = V/R (1 - exp(-t R/L)). Shorted turns scale R by the kept
+fraction of turns and L by its square (inductance goes with turns squared: L = N^2 / reluctance).
+"""
+
+from __future__ import annotations
+
+import json
+import tomllib
+
+import pytest
+
+from conftest import EXAMPLES, run_cli
+from coildrive.bench.capture_file import write_capture
+from coildrive.bench.check import FAIL, INFO, NA, PASS, Tolerances, check_capture
+from coildrive.bench.fit import fit_capture
+from coildrive.bench.synth import synth_design_capture
+from coildrive.config import load_drive
+from coildrive.design import design
+from coildrive.errors import InputError
+
+ALPHA = 0.00393  # IEC 60028
+
+
+def _design(name: str):
+    return design(load_drive(EXAMPLES / f"{name}.toml"))
+
+
+@pytest.fixture(scope="module")
+def demo():
+    return _design("demo-valve")
+
+
+def _status(report) -> dict:
+    return {i.name: i.status for i in report.items}
+
+
+@pytest.mark.parametrize("name", ["demo-valve", "pinch-valve-48v", "locker-latch-12v", "relay-12v"])
+def test_nominal_capture_passes(name):
+    d = _design(name)
+    cap = synth_design_capture(d, actuations=3, hold_time=0.05, noise_codes=1.0, seed=11)
+    report = check_capture(cap, d)
+    assert report.ok, [(i.name, i.status, i.measured, i.predicted, i.detail) for i in report.items]
+    status = _status(report)
+    assert status["pull_in_time"] == PASS and status["hold_mean"] == PASS
+    if d.drive.armature is not None:
+        assert status["seated_time"] == PASS, "with [armature] the seat is predicted and checked"
+    else:
+        assert status["seated_time"] == INFO
+    if d.drive.board.sense.position == "switch":
+        assert status["release_time"] == NA, "the release is invisible under the switch"
+    else:
+        assert status["release_time"] == PASS
+
+
+@pytest.mark.parametrize("kwargs, failing", [
+    ({"resistance_scale": 1.4}, {"pull_in_time", "hold_mean", "release_time"}),
+    ({"fault": "open"}, {"pull_in_time", "hold_mean"}),
+    ({"fault": "shorted_turns"}, {"pull_in_time", "hold_mean"}),
+])
+def test_wrong_coils_fail(demo, kwargs, failing):
+    cap = synth_design_capture(demo, actuations=2, hold_time=0.05, noise_codes=1.0, seed=3, **kwargs)
+    report = check_capture(cap, demo)
+    assert not report.ok
+    assert failing <= {i.name for i in report.failed}, [(i.name, i.status) for i in report.items]
+
+
+def test_stuck_armature_fails_on_the_missing_dip():
+    d = _design("locker-latch-12v")
+    cap = synth_design_capture(d, actuations=2, hold_time=0.03, noise_codes=1.0, seed=2, fault="stuck")
+    report = check_capture(cap, d)
+    assert _status(report)["seated_time"] == FAIL
+    assert "not measured" in [i for i in report.items if i.name == "seated_time"][0].detail
+
+
+def test_operating_point_sources(demo):
+    cap = synth_design_capture(demo, hold_time=0.05, supply=21.0, coil_temp=40.0)
+    r = check_capture(cap, demo)
+    assert (r.point.supply_v, r.point.coil_temp_c) == (21.0, 40.0)
+    assert r.point.supply_from == "capture header" and r.ok
+    bare = cap.with_meta(supply_v=None, coil_temp_c=None)
+    r2 = check_capture(bare, demo)
+    assert r2.point.supply_v == demo.drive.supply.nominal and r2.point.coil_temp_c == 20.0
+    assert not r2.ok, "predicted at 24 V, a 21 V capture is too slow"
+    r3 = check_capture(bare, demo, supply=21.0, coil_temp=40.0)
+    assert r3.point.supply_from == "--supply" and r3.ok
+
+
+def test_tolerances_are_ours_and_overridable(demo):
+    assert Tolerances().pull_in_time == 0.15 and Tolerances().hold_mean == 0.10
+    cap = synth_design_capture(demo, hold_time=0.05, resistance_scale=1.4)
+    loose = Tolerances(pull_in_time=0.6, hold_mean=0.6, release_time=0.6, peak_duration=0.6)
+    assert check_capture(cap, demo, loose).ok
+    with pytest.raises(InputError):
+        Tolerances(hold_mean=-1)
+
+
+def test_json_document(demo):
+    cap = synth_design_capture(demo, hold_time=0.05)
+    doc = json.loads(json.dumps(check_capture(cap, demo).to_dict()))
+    assert doc["ok"] is True
+    assert {"operating_point", "tolerances", "prediction", "items", "analysis", "cautions"} <= set(doc)
+    assert len(doc["analysis"]["actuations"]) == 1
+
+
+# ----------------------------------------------------------------------------- CLI
+@pytest.fixture(scope="module")
+def captures(tmp_path_factory, demo):
+    folder = tmp_path_factory.mktemp("captures")
+    nominal = synth_design_capture(demo, actuations=3, hold_time=0.05, noise_codes=1.0, seed=5)
+    high_r = synth_design_capture(demo, actuations=3, hold_time=0.05, noise_codes=1.0, seed=5,
+                                  resistance_scale=1.4)
+    write_capture(folder / "nominal.cdcap", nominal)
+    write_capture(folder / "high-r.cdcap", high_r)
+    text = "".join(f"{k},{c}\n" for k, c in zip(nominal.index, nominal.code))
+    (folder / "text.txt").write_text(text)
+    return folder
+
+
+DEMO = str(EXAMPLES / "demo-valve.toml")
+
+
+@pytest.mark.slow
+def test_cli_check_passes_and_fails_like_a_test_station(captures, tmp_path):
+    ok = run_cli("check", str(captures / "nominal.cdcap"), DEMO, "--plot", str(tmp_path / "p.png"))
+    assert ok.returncode == 0, ok.stdout + ok.stderr
+    assert "check passed" in ok.stdout and "local codes" in ok.stdout  # cautions shown
+    assert (tmp_path / "p.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    bad = run_cli("check", str(captures / "high-r.cdcap"), DEMO)
+    assert bad.returncode == 1, bad.stdout + bad.stderr
+    assert "check FAILED" in bad.stdout and "hold_mean" in bad.stdout
+    loose = run_cli("check", str(captures / "high-r.cdcap"), DEMO, "--tol-pull-in", "60 %",
+                    "--tol-hold-mean", "0.6", "--tol-release", "60 %")
+    assert loose.returncode == 0, loose.stdout
+    js = run_cli("check", str(captures / "high-r.cdcap"), DEMO, "--json")
+    assert js.returncode == 1
+    doc = json.loads(js.stdout)  # stdout holds one JSON document and nothing else
+    assert doc["ok"] is False
+
+
+@pytest.mark.slow
+def test_cli_text_capture_uses_the_board(captures):
+    r = run_cli("check", str(captures / "text.txt"), DEMO, "--supply", "24 V", "--coil-temp", "20")
+    assert r.returncode == 0, r.stdout + r.stderr
+    assert "from the waveform" in r.stdout or "waveform" in r.stdout
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("args, message", [
+    (["check", "missing.cdcap", DEMO], "file not found"),
+    (["check", DEMO, DEMO], "not a capture"),
+    (["check", "@nominal", DEMO, "--tol-pull-in", "abc"], "--tol-pull-in"),
+    (["check", "@nominal", DEMO, "--supply", "3 A"], "expected a voltage"),
+    (["check", "@nominal", "missing.toml"], "missing.toml"),
+    (["fit", "@text"], "--board"),
+    (["fit", "@text", "--board", "lab-m32-zener"], "--supply"),
+    (["fit", "@nominal", "--board", "no-such-board"], "unknown board"),
+])
+def test_cli_bad_input_is_one_line_exit_2(captures, args, message):
+    args = [str(captures / ("nominal.cdcap" if a == "@nominal" else "text.txt")) if a.startswith("@") else a
+            for a in args]
+    r = run_cli(*args)
+    assert r.returncode == 2, r.stdout + r.stderr
+    assert len(r.stderr.strip().splitlines()) == 1 and message in r.stderr, r.stderr
+    assert "Traceback" not in r.stderr
+
+
+# ----------------------------------------------------------------------------- fit
+@pytest.mark.parametrize("name, kwargs, r_factor, l_factor", [
+    ("demo-valve", {}, 1.0, 1.0),
+    ("demo-valve", {"resistance_scale": 1.25, "inductance_scale": 0.8}, 1.25, 0.8),
+    ("demo-valve", {"fault": "shorted_turns", "shorted_fraction": 0.2}, 0.8, 0.64),
+    ("pinch-valve-48v", {"resistance_scale": 0.9}, 0.9, 1.0),
+    ("relay-12v", {}, 1.0, 1.0),
+    ("locker-latch-12v", {}, 1.0, 1.0),
+])
+def test_fit_recovers_r_and_l_within_3_percent(name, kwargs, r_factor, l_factor):
+    d = _design(name)
+    drive = d.drive
+    temp = 35.0
+    cap = synth_design_capture(d, actuations=3, hold_time=0.03, noise_codes=1.0, seed=9,
+                               coil_temp=temp, **kwargs)
+    fit = fit_capture(cap, drive.board, cap.meta.supply_v, temp)
+    c = drive.coil
+    r_true = c.resistance * (1 + ALPHA * (temp - 20)) / (1 + ALPHA * (c.reference_temp - 20)) * r_factor
+    l_true = (drive.armature.inductance_open if drive.armature else c.inductance) * l_factor
+    assert fit.resistance_ohm == pytest.approx(r_true, rel=0.03), "R: IEC 60028 copper at 35 degC"
+    assert fit.inductance_h == pytest.approx(l_true, rel=0.03), "L: the coil the capture was made with"
+    assert fit.armature_moves == (drive.armature is not None)
+    section = tomllib.loads(fit.coil_section())["coil"]
+    assert set(section) == {"resistance", "reference_temp", "inductance"}
+    assert section["reference_temp"] == "35 degC"
+
+
+@pytest.mark.slow
+def test_cli_fit_prints_a_coil_section(captures, demo):
+    r = run_cli("fit", str(captures / "nominal.cdcap"))
+    assert r.returncode == 0, r.stderr
+    coil = tomllib.loads(r.stdout)["coil"]
+    from coildrive.units import parse_quantity
+    assert parse_quantity(coil["resistance"], "resistance") == pytest.approx(22.0, rel=0.03)
+    assert parse_quantity(coil["inductance"], "inductance") == pytest.approx(0.060, rel=0.03)
+    js = run_cli("fit", str(captures / "text.txt"), "--board", "lab-m32-zener", "--supply", "24", "--json")
+    assert js.returncode == 0, js.stderr
+    doc = json.loads(js.stdout)
+    assert doc["inductance_h"] == pytest.approx(0.060, rel=0.03) and not doc["coil_temp_known"]
+    assert "[coil]" in doc["coil_section"]
