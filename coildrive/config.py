@@ -28,6 +28,15 @@ HOLD_MODES = ("voltage", "current")
 CURRENT_CONTROLS = ("hysteretic", "off_time")
 _CURRENT_MODE_KEYS = ("control", "band", "off_time", "min_frequency", "max_frequency", "sense_delay")
 DISTRIBUTIONS = ("uniform", "normal")
+#: Default fraction of a part's rated average power that the hold may use (common
+#: practice: power resistors, diodes and switches are run at about half their rating,
+#: which leaves room for a hot enclosure and for the rating's own test conditions).
+POWER_DERATING = 0.5
+#: Freewheel keys of split decay (only with ``split_decay = true``).
+_BYPASS_KEYS = ("bypass_resistance", "bypass_lead", "bypass_power_rating")
+_FREEWHEEL_LATER = ("split_decay", "bypass_resistance", "bypass_lead", "diode_power_rating",
+                    "zener_power_rating", "resistor_power_rating", "clamp_power_rating",
+                    "bypass_power_rating", "power_derating")
 
 
 # --------------------------------------------------------------------------- data
@@ -196,7 +205,10 @@ class Switch:
 
     The peak switch voltage must stay below ``max_voltage * derating``. ``rise_time``
     and ``fall_time`` (s, 0 = not given) are the switching transition times used for
-    the switching-loss estimate of ``coildrive tune``.
+    the switching-loss estimate (``coildrive tune``, the hold's switch power).
+    ``power_rating`` (W, 0 = not given) is the average power the switch may dissipate
+    as mounted; the hold's switch power must stay below ``power_rating *
+    power_derating`` (default :data:`POWER_DERATING`, common practice).
     """
 
     on_resistance: float
@@ -204,6 +216,8 @@ class Switch:
     derating: float = 0.8
     rise_time: float = 0.0
     fall_time: float = 0.0
+    power_rating: float = 0.0
+    power_derating: float = POWER_DERATING
 
 
 @dataclass(frozen=True)
@@ -213,6 +227,18 @@ class Freewheel:
     ``diode``: a diode across the coil. ``zener``: diode + Zener in series across the
     coil. ``resistor``: diode + resistor across the coil. ``clamp``: a clamp (TVS) across
     the switch, limiting its voltage to ``clamp_voltage``.
+
+    Split decay (``split_decay``): a bypass switch, driven by its own pin, shorts the
+    fast-decay element during the hold -- the Zener or the resistor, or with a clamp it
+    closes a diode path across the coil (``diode_drop``) -- so the PWM off-times decay
+    slowly; it opens for the release, which then decays fast. ``bypass_resistance``
+    (ohm) is the bypass switch's on-resistance; ``bypass_lead`` (s) is how long before
+    the main switch's final turn-off the bypass opens (negative: after it; the first
+    part of the release then decays slowly).
+
+    Power ratings (W, 0 = not given) of each element as mounted, checked against the
+    hold's average power times ``power_derating`` (default :data:`POWER_DERATING`,
+    common practice).
     """
 
     type: str
@@ -220,6 +246,15 @@ class Freewheel:
     zener_voltage: float = 0.0
     resistance: float = 0.0
     clamp_voltage: float = 0.0
+    split_decay: bool = False
+    bypass_resistance: float = 0.0
+    bypass_lead: float = 0.0
+    diode_power_rating: float = 0.0
+    zener_power_rating: float = 0.0
+    resistor_power_rating: float = 0.0
+    clamp_power_rating: float = 0.0
+    bypass_power_rating: float = 0.0
+    power_derating: float = POWER_DERATING
 
 
 @dataclass(frozen=True)
@@ -292,8 +327,10 @@ class Drive:
 #: default, so that files which do not use them keep their hash (and headers their bytes).
 _LATER_FIELDS = (
     (("hold",), Hold, _CURRENT_MODE_KEYS),
-    (("switch",), Switch, ("rise_time", "fall_time")),
-    (("board", "switch"), Switch, ("rise_time", "fall_time")),
+    (("switch",), Switch, ("rise_time", "fall_time", "power_rating", "power_derating")),
+    (("board", "switch"), Switch, ("rise_time", "fall_time", "power_rating", "power_derating")),
+    (("freewheel",), Freewheel, _FREEWHEEL_LATER),
+    (("board", "freewheel"), Freewheel, _FREEWHEEL_LATER),
     (("board", "timer"), Timer, ("max_pwm_frequency",)),
 )
 
@@ -376,6 +413,12 @@ class _Section:
             raise self.fail(key, f"{raw!r} is not one of {', '.join(map(repr, options))}")
         return raw
 
+    def boolean(self, key: str, default: Any = _MISSING) -> bool:
+        raw = self._get(key, default)
+        if not isinstance(raw, bool):
+            raise self.fail(key, f"{raw!r} is not true or false")
+        return raw
+
     def text(self, key: str, default: Any = _MISSING) -> str:
         raw = self._get(key, default)
         if not isinstance(raw, str):
@@ -448,6 +491,8 @@ def _read_switch(sec: _Section) -> Switch:
         derating=sec.fraction("derating", 0.8, below_one=False),
         rise_time=sec.quantity("rise_time", "time", 0.0, nonnegative=True),
         fall_time=sec.quantity("fall_time", "time", 0.0, nonnegative=True),
+        power_rating=sec.quantity("power_rating", "power", 0.0, nonnegative=True),
+        power_derating=_power_derating(sec),
     )
     if not 0 < switch.derating <= 1:
         raise sec.fail("derating", f"{switch.derating:g} must be in (0, 1], e.g. 0.8")
@@ -473,8 +518,33 @@ def _read_freewheel(sec: _Section) -> Freewheel:
                          nonnegative=True)
     if kind == "clamp" and not clamp > 0:
         raise sec.fail("clamp_voltage", "must be greater than zero for a clamp across the switch")
+    split = sec.boolean("split_decay", False)
+    if not split:
+        for key in _BYPASS_KEYS:
+            if key in sec.table:
+                raise sec.fail(key, "is only used with split_decay = true (a bypass switch "
+                               "across the fast-decay element)")
+    if split and kind == "clamp" and not diode > 0:
+        raise sec.fail("diode_drop", f"{diode:g} V: split decay with a clamp needs the drop of "
+                       "the freewheel diode the bypass switch puts across the coil (> 0)")
+    ratings = {key: sec.quantity(key, "power", 0.0, nonnegative=True) for key in
+               ("diode_power_rating", "zener_power_rating", "resistor_power_rating",
+                "clamp_power_rating", "bypass_power_rating")}
+    fw = Freewheel(kind, diode, zener, resistance, clamp, split_decay=split,
+                   bypass_resistance=sec.quantity("bypass_resistance", "resistance", 0.0,
+                                                  nonnegative=True),
+                   bypass_lead=sec.quantity("bypass_lead", "time", 0.0),
+                   power_derating=_power_derating(sec), **ratings)
     sec.finish()
-    return Freewheel(kind, diode, zener, resistance, clamp)
+    return fw
+
+
+def _power_derating(sec: _Section) -> float:
+    value = sec.quantity("power_derating", "dimensionless", POWER_DERATING)
+    if not 0 < value <= 1:
+        raise sec.fail("power_derating", f"{value:g} must be in (0, 1], e.g. {POWER_DERATING:g} "
+                       "(the fraction of the rated power the hold may use)")
+    return value
 
 
 def _read_armature(s: _Section) -> Armature:
@@ -739,6 +809,14 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
         fw_board = {k: v for k, v in fw_board.items() if k == "type" or v}
     merged, origins = _merged(brd.source, fw_board, source, fw_drive)
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
+    if freewheel.split_decay and armature is not None:
+        raise InputError(origins.get("split_decay", source), "freewheel.split_decay",
+                         "is not supported with [armature] yet (the moving-armature model uses "
+                         "one freewheel path): leave split_decay out or the [armature] section")
+    if freewheel.split_decay and hold.mode == "current":
+        raise InputError(origins.get("split_decay", source), "freewheel.split_decay",
+                         "is not supported with hold.mode = \"current\" yet: use the "
+                         "voltage-mode hold with split decay")
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:
         raise InputError(origins.get("clamp_voltage", source), "freewheel.clamp_voltage",
                          f"{freewheel.clamp_voltage:g} V is not above supply.max ({supply.max:g} V): "

@@ -7,7 +7,10 @@ Decisions (each explained in docs/design-method.md):
 * hold duty = the smallest duty whose steady-state mean current meets ``hold.current`` at
   every corner with the self-heating it causes, rounded up to whole compare counts;
 * a supply-compensated duty table (compare value against supply-sense ADC code);
-* release through the board's freewheel path, checked against the switch rating.
+* release through the board's freewheel path, checked against the switch rating;
+* the hold's average power in every freewheel element and in the switch at every corner
+  (:mod:`coildrive.model.losses`), checked against the board's power ratings; with
+  split decay the hold takes the slow path and the release the fast one.
 
 The :class:`Design` holds plain data; the table, JSON, header and plot all read it and
 none of them recomputes physics.
@@ -15,6 +18,7 @@ none of them recomputes physics.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from dataclasses import asdict, dataclass, field
 
@@ -24,7 +28,8 @@ from . import __version__
 from .config import Drive
 from .corners import CornerGrid, corner_grid, nominal_point
 from .evaluate import PointResults, evaluate, required_duty
-from .model.circuit import loop
+from .model.circuit import loop, split_decay
+from .model.losses import HoldLosses, hold_losses
 from .model.waveform import actuation
 from .model.pwm import duty_for_mean, pwm_steady_state
 from .timer import TimerSetting, solve_timer
@@ -42,6 +47,12 @@ MIN_HOLD_CODES = 10
 #: Entries in the supply-compensated duty table.
 DUTY_TABLE_ENTRIES = 16
 UINT32_MAX = 2**32 - 1
+#: Drop of the freewheel diode assumed for the split-decay saving of a clamp board that
+#: gives none (common practice: a silicon rectifier at its working current).
+ASSUMED_DIODE_DROP = 0.8
+#: What the freewheel elements are called in tables and check details.
+ELEMENT_NAMES = {"diode": "freewheel diode", "zener": "Zener", "resistor": "freewheel resistor",
+                 "clamp": "clamp", "bypass": "bypass switch"}
 
 
 @dataclass(frozen=True)
@@ -76,6 +87,8 @@ class Corner:
     peak_switch_voltage_v: float
     release_energy_j: float
     armature: dict | None = None
+    freewheel_power_w: float = math.nan
+    switch_power_w: float = math.nan
 
 
 #: Per-corner keys added with an ``[armature]`` (flattened into each JSON corner).
@@ -150,7 +163,15 @@ class PullInResult:
 
 @dataclass(frozen=True)
 class HoldResult:
-    """Hold: the duty as the timer makes it and the currents it gives across corners."""
+    """Hold: the duty as the timer makes it and the currents it gives across corners.
+
+    Heat outside the coil (W, :mod:`coildrive.model.losses`): ``freewheel_power_w`` is
+    the freewheel path's total at its worst corner, ``freewheel_elements_w`` each
+    element's largest over the corners, ``switch_power_w`` conduction + switching
+    estimate at the switch's worst corner; ``decay_path`` names the hold's freewheel
+    path. ``split_decay_saving`` says what split decay would change (``None`` with a
+    diode path or with split decay fitted); see docs/design-method.md.
+    """
 
     mode: str
     current_a: float
@@ -167,6 +188,36 @@ class HoldResult:
     coil_temp_c: float
     hottest_corner: str
     discontinuous_corners: int
+    freewheel_power_w: float = math.nan
+    freewheel_power_corner: str = ""
+    freewheel_elements_w: dict = field(default_factory=dict)
+    switch_power_w: float = math.nan
+    switch_conduction_w: float = math.nan
+    switch_switching_w: float = math.nan
+    switch_power_corner: str = ""
+    decay_path: str = ""
+    split_decay_saving: dict | None = None
+
+
+@dataclass(frozen=True)
+class SplitDecayResult:
+    """Split decay: the hold takes the slow path, the release the fast one.
+
+    ``bypass_lead_s`` is the board's ``bypass_lead`` (s; > 0: the bypass opens before the
+    main switch's final turn-off, < 0: after it); as PWM-timer counts (one count =
+    ``1 / count_rate_hz`` s) ``lead_counts`` before the final turn-off (rounded up) or
+    ``lag_counts`` after it (rounded down), one of them zero. ``on_time_counts`` is the
+    hold's on-time, within which a leading bypass must open.
+    """
+
+    hold_path: str
+    release_path: str
+    bypass_resistance_ohm: float
+    bypass_lead_s: float
+    count_rate_hz: float
+    lead_counts: int
+    lag_counts: int
+    on_time_counts: int
 
 
 @dataclass(frozen=True)
@@ -250,6 +301,7 @@ class Design:
     worst_corner_index: int = 0
     extra: dict = field(default_factory=dict)
     armature: ArmatureResult | None = None
+    split_decay: SplitDecayResult | None = None
 
     @property
     def ok(self) -> bool:
@@ -290,6 +342,8 @@ class Design:
         out["nominal"] = _corner_dict(self.nominal)
         if self.armature is not None:
             out["armature"] = asdict(self.armature)
+        if self.split_decay is not None:
+            out["split_decay"] = asdict(self.split_decay)
         if "current_mode" in self.extra:
             out["current_mode"] = asdict(self.extra["current_mode"])
         if self.monte_carlo is not None:
@@ -332,8 +386,11 @@ def _corner_armature(res: PointResults, k: int) -> dict | None:
     }
 
 
-def _corners(grid: CornerGrid, res: PointResults) -> list[Corner]:
+def _corners(grid: CornerGrid, res: PointResults, losses: HoldLosses | None = None) -> list[Corner]:
     out = []
+    nan = np.full(len(grid), math.nan)
+    fw_p = nan if losses is None else np.broadcast_to(losses.freewheel, nan.shape)
+    sw_p = nan if losses is None else np.broadcast_to(losses.switch, nan.shape)
     for k in range(len(grid)):
         out.append(Corner(
             label=grid.label(k),
@@ -349,6 +406,7 @@ def _corners(grid: CornerGrid, res: PointResults) -> list[Corner]:
             peak_switch_voltage_v=float(res.peak_switch_voltage[k]),
             release_energy_j=float(res.release_energy[k]),
             armature=_corner_armature(res, k),
+            freewheel_power_w=float(fw_p[k]), switch_power_w=float(sw_p[k]),
         ))
     return out
 
@@ -437,11 +495,14 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     peak_time = peak_ticks / tick_rate
     res = evaluate(drive, grid.supply, grid.ambient, grid.r_factor, grid.l_factor, duty, f_hold,
                    peak_time, reuse=first)
-    corners = _corners(grid, res)
+    # Hold powers at every corner from the steady state the design already has (coil at
+    # its settled temperature there).
+    loss = _losses(drive, res, f_hold)
+    corners = _corners(grid, res, loss)
     nom_grid = nominal_point(drive)
     nom = evaluate(drive, nom_grid.supply, nom_grid.ambient, nom_grid.r_factor, nom_grid.l_factor,
                    duty, f_hold, peak_time)
-    nominal = _corners(nom_grid, nom)[0]
+    nominal = _corners(nom_grid, nom, _losses(drive, nom, f_hold))[0]
     nominal = Corner(**{**asdict(nominal), "label": "nominal: " + nominal.label})
 
     # Hold figures
@@ -459,6 +520,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
         ripple_a=float(np.max(res.hold.ripple)), current_step_a=float(np.max(step)),
         coil_power_w=float(np.max(res.coil_power)), coil_temp_c=float(res.coil_temp[k_hot]),
         hottest_corner=grid.label(k_hot), discontinuous_corners=int(np.sum(res.hold.dcm)),
+        **_loss_figures(drive, grid, loss),
+        split_decay_saving=_split_saving(drive, grid, timer, res, loss, duty, peak_time),
     )
 
     # Release
@@ -505,16 +568,19 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     table = _duty_table(drive, grid, res.coil_temp, timer)
 
     checks = _checks(drive, grid, res, pull_in, hold, release, timer_result, thresholds, timer)
+    split = _split_result(drive, timer, compare) if split_decay(drive) else None
     arm = None
     if res.armature is not None:
         arm = _armature_result(drive, grid, res)
         checks += _armature_checks(drive, grid, res, arm, release)
+    checks += _loss_checks(drive, hold, loss, grid, split)
     cautions = _cautions(drive, hold, release)
     if arm is not None:
         cautions.append(
             "Pull-in and release moments come from the mechanical figures in [armature]; confirm "
             "the current dip and the release on the bench before relying on the margins of a "
             "safety-relevant actuator (an armature that fails to release keeps the load engaged).")
+    cautions += _loss_cautions(drive, hold, release, split)
     waveforms = {
         "nominal": _waveform(drive, nom, 0, peak_time, duty, f_hold, "nominal"),
         "worst": _waveform(drive, res, k_pull, peak_time, duty, f_hold,
@@ -527,7 +593,180 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     return Design(drive=drive, pull_in=pull_in, hold=hold, release=release, timer=timer_result,
                   adc=thresholds, duty_table=table, corners=corners, nominal=nominal,
                   checks=checks, cautions=cautions, monte_carlo=mc, waveforms=waveforms,
-                  input_hash=drive.input_hash(), worst_corner_index=k_pull, armature=arm)
+                  input_hash=drive.input_hash(), worst_corner_index=k_pull, armature=arm,
+                  split_decay=split)
+
+
+# --------------------------------------------------------------------------- hold losses
+def _losses(drive: Drive, res: PointResults, frequency: float) -> HoldLosses:
+    """Element powers of the hold at the points of ``res`` (its loop and steady state)."""
+    sw = drive.switch
+    return hold_losses(drive, res.loop, res.hold, frequency, sw.rise_time, sw.fall_time)
+
+
+def _path_name(drive: Drive, hold: bool) -> str:
+    fw = drive.freewheel
+    fast = {"diode": "diode", "zener": "diode + Zener", "resistor": "diode + resistor",
+            "clamp": "clamp across the switch"}[fw.type]
+    if hold and split_decay(drive):
+        return "diode + bypass switch (slow decay)"
+    return fast + (" (slow decay)" if fw.type == "diode" else " (fast decay)")
+
+
+def _loss_figures(drive: Drive, grid: CornerGrid, loss: HoldLosses) -> dict:
+    """The worst-corner hold powers as :class:`HoldResult` fields."""
+    k_fw = _worst(loss.freewheel)
+    k_sw = _worst(np.broadcast_to(loss.switch, loss.freewheel.shape))
+    elements = {name: float(np.max(p)) for name, p in loss.elements().items() if np.any(p > 0)}
+    return dict(
+        freewheel_power_w=float(loss.freewheel[k_fw]), freewheel_power_corner=grid.label(k_fw),
+        freewheel_elements_w=elements,
+        switch_power_w=float(np.broadcast_to(loss.switch, loss.freewheel.shape)[k_sw]),
+        switch_conduction_w=float(np.max(loss.switch_conduction)),
+        switch_switching_w=float(np.max(loss.switch_switching)),
+        switch_power_corner=grid.label(k_sw), decay_path=_path_name(drive, hold=True),
+    )
+
+
+def _split_saving(drive: Drive, grid: CornerGrid, timer: TimerSetting, res: PointResults,
+                  loss: HoldLosses, duty: float, peak_time: float) -> dict | None:
+    """What split decay would save when the hold takes a fast-decay path without it: the
+    same design (frequency, peak) with the slow hold path, its duty solved again.
+
+    ``None`` with a plain diode path (already slow) or with split decay fitted.
+    """
+    fw = drive.freewheel
+    if fw.type == "diode" or split_decay(drive):
+        return None
+    assumed = fw.diode_drop <= 0
+    slow_fw = dataclasses.replace(fw, split_decay=True, bypass_resistance=0.0, bypass_lead=0.0,
+                                  diode_drop=ASSUMED_DIODE_DROP if assumed else fw.diode_drop)
+    slow = dataclasses.replace(drive, freewheel=slow_fw)
+    f_hold = timer.frequency_hz
+    # The duty iteration climbs to the smallest self-consistent duty from below, so
+    # stopping it early (within a quarter count) gives a duty at or below it; the compare
+    # is then rounded up and raised until every corner holds, which lands on the same
+    # count as the exact duty would (the tests compare with a full split-decay design).
+    d_low, _ = required_duty(slow, grid.supply, grid.ambient, grid.r_factor, grid.l_factor, f_hold,
+                             tol=0.25 / timer.period_ticks)
+    compare = _quantised_compare(slow, grid, d_low, timer)
+    d_slow = compare / timer.period_ticks
+    rs = evaluate(slow, grid.supply, grid.ambient, grid.r_factor, grid.l_factor, d_slow, f_hold,
+                  peak_time, mechanics=False)
+    ls = _losses(slow, rs, f_hold)
+    fast_element = {"zener": "zener", "resistor": "resistor", "clamp": "clamp"}[fw.type]
+    return {
+        "freewheel_power_w": float(np.max(loss.freewheel) - np.max(ls.freewheel)),
+        "fast_element": fast_element,
+        "fast_element_power_w": float(np.max(getattr(loss, fast_element))),
+        "freewheel_power_split_w": float(np.max(ls.freewheel)),
+        "coil_power_change_w": float(np.max(rs.coil_power) - np.max(res.coil_power)),
+        "switch_power_change_w": float(np.max(ls.switch) - np.max(loss.switch)),
+        "duty_split": d_slow, "compare_ticks_split": compare,
+        "duty_change": d_slow - duty,
+        "ripple_split_a": float(np.max(rs.hold.ripple)),
+        "ripple_change_a": float(np.max(rs.hold.ripple) - np.max(res.hold.ripple)),
+        "assumed_diode_drop_v": ASSUMED_DIODE_DROP if assumed else None,
+    }
+
+
+def _split_result(drive: Drive, timer: TimerSetting, compare: int) -> SplitDecayResult:
+    fw = drive.freewheel
+    rate = drive.board.timer.clock / timer.prescaler
+    lead = fw.bypass_lead
+    lead_counts = math.ceil(lead * rate - 1e-9) if lead > 0 else 0
+    lag_counts = math.floor(-lead * rate + 1e-9) if lead < 0 else 0
+    return SplitDecayResult(
+        hold_path=_path_name(drive, hold=True), release_path=_path_name(drive, hold=False),
+        bypass_resistance_ohm=fw.bypass_resistance, bypass_lead_s=lead, count_rate_hz=rate,
+        lead_counts=lead_counts, lag_counts=lag_counts, on_time_counts=compare)
+
+
+def _loss_checks(drive: Drive, hold: HoldResult, loss: HoldLosses, grid: CornerGrid,
+                 split: SplitDecayResult | None) -> list[Check]:
+    """The hold's average power in each freewheel element and in the switch against the
+    board's ratings x derating (common practice); a warning where no rating is given.
+    With split decay, the bypass timing."""
+    fw, sw = drive.freewheel, drive.switch
+    out: list[Check] = []
+    fix = (" — fit split decay (a bypass switch across the fast element during the hold), lower "
+           "the hold current, or use a part rated for more" if hold.split_decay_saving else
+           " — lower the hold current or use a part rated for more")
+    for name, p in loss.elements().items():
+        if not np.any(p > 0):
+            continue
+        k = _worst(p)
+        worst = float(p[k])
+        what = f"the hold puts {worst:.3g} W into the {ELEMENT_NAMES[name]} ({grid.label(k)})"
+        rating = getattr(fw, f"{name}_power_rating")
+        check = f"{name}_power"
+        if rating > 0:
+            limit = rating * fw.power_derating
+            ok = worst <= limit
+            out.append(Check(check, ok, f"{what} vs {limit:.3g} W ({fw.power_derating:.0%} of the "
+                             f"{rating:.3g} W rating, power derating: common practice)"
+                             + ("" if ok else fix)))
+        else:
+            out.append(Check(check, False, f"{what}; the board gives no freewheel.{name}_power_rating "
+                             "to check it against", severity="warning"))
+    sw_p = np.broadcast_to(loss.switch, loss.freewheel.shape)
+    k = _worst(sw_p)
+    how = (f"conduction {float(loss.switch_conduction[k]):.3g} W + switching "
+           f"{float(np.broadcast_to(loss.switch_switching, sw_p.shape)[k]):.3g} W"
+           if sw.rise_time > 0 or sw.fall_time > 0 else
+           "conduction only (no switch.rise_time/fall_time: switching loss not estimated)")
+    what = f"the hold puts {float(sw_p[k]):.3g} W into the switch ({how}, {grid.label(k)})"
+    if sw.power_rating > 0:
+        limit = sw.power_rating * sw.power_derating
+        ok = float(sw_p[k]) <= limit
+        out.append(Check("switch_power", ok, f"{what} vs {limit:.3g} W ({sw.power_derating:.0%} of "
+                         f"the {sw.power_rating:.3g} W rating, power derating: common practice)"
+                         + ("" if ok else " — a switch with a lower on-resistance or faster edges, or more cooling")))
+    else:
+        out.append(Check("switch_power", False, f"{what}; the board gives no switch.power_rating to "
+                         "check it against", severity="warning"))
+    if fw.split_decay and fw.type == "diode":
+        out.append(Check("split_decay", False, "split_decay has nothing to bypass on a plain diode "
+                         "path (the hold and the release both decay slowly)", severity="warning"))
+    elif split is not None:
+        rate = split.count_rate_hz
+        if split.lead_counts > 0:
+            ok = split.lead_counts <= split.on_time_counts
+            out.append(Check("bypass_timing", ok,
+                             f"the bypass opens {fw.bypass_lead * 1e6:.4g} us ({split.lead_counts} counts) "
+                             f"before the final turn-off, within the last on-time of "
+                             f"{split.on_time_counts / rate * 1e6:.4g} us ({split.on_time_counts} counts)"
+                             + ("" if ok else " — shorten freewheel.bypass_lead to at most the hold "
+                                "on-time: it would open during an off-time")))
+        elif split.lag_counts > 0 or fw.bypass_lead < 0:
+            out.append(Check("bypass_timing", False,
+                             f"the bypass opens {-fw.bypass_lead * 1e6:.4g} us ({split.lag_counts} counts) "
+                             "after the final turn-off: the release decays slowly until then (the "
+                             "release time includes it) — open it before the turn-off",
+                             severity="warning"))
+        else:
+            out.append(Check("bypass_timing", False,
+                             "the bypass opens with the final turn-off (bypass_lead = 0): the bypass "
+                             "switch's own turn-off delay slows the start of the release — give "
+                             "freewheel.bypass_lead of at least that delay", severity="warning"))
+    return out
+
+
+def _loss_cautions(drive: Drive, hold: HoldResult, release: ReleaseResult,
+                   split: SplitDecayResult | None) -> list[str]:
+    parts = ", ".join(f"{ELEMENT_NAMES[n]} {w:.3g} W" for n, w in hold.freewheel_elements_w.items())
+    out = [
+        f"During a long hold the freewheel path takes up to {hold.freewheel_power_w:.3g} W ({parts}) "
+        f"and the switch {hold.switch_power_w:.3g} W: parts taking watts get hot enough to burn; size "
+        "them and their cooling from the datasheets' derating curves at the highest ambient."]
+    if split is not None:
+        out.append(
+            "Split decay relies on the bypass switch: if it stays on at the release the current "
+            f"decays slowly through the diode (the load lets go late); if it fails open the "
+            f"{drive.freewheel.type} path takes the hold power. Keep the {drive.freewheel.type} "
+            f"rated for the release energy ({release.energy_j * 1e3:.3g} mJ) and verify both "
+            "paths on the bench.")
+    return out
 
 
 def _waveform(drive: Drive, res: PointResults, k: int, peak_time: float, duty: float,

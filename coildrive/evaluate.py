@@ -16,9 +16,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from .config import Drive
-from .model.circuit import Loop, freewheel_element_energy, loop
+from .model.circuit import Loop, freewheel_element_energy, loop, split_decay
 from .model.pwm import PwmSteadyState, duty_for_mean, pwm_steady_state
-from .model.rl import decay_integrals, decay_time, rise_current, rise_time
+from .model.rl import decay_current, decay_integrals, decay_time, rise_current, rise_time
 from .model.thermal import settle_temperature
 
 
@@ -32,13 +32,14 @@ def hold_temperature(drive: Drive, supply, ambient, r_factor, l_factor, duty, fr
 
 
 def required_duty(drive: Drive, supply, ambient, r_factor, l_factor, frequency,
-                  target: float | None = None, max_iter: int = 30):
+                  target: float | None = None, max_iter: int = 30, tol: float = 1e-9):
     """Smallest single duty that meets ``target`` A (default: hold current) at every point,
     with the self-heating that duty causes.
 
     Iterates duty -> temperature -> duty from the cold coil; each step can only raise the
-    duty, so it converges to the smallest self-consistent duty. Returns
-    ``(duty, temperatures)``; duty is ``nan`` where 100 % cannot reach the target.
+    duty, so it converges to the smallest self-consistent duty (from below: a looser
+    ``tol`` stops at or below it). Returns ``(duty, temperatures)``; duty is ``nan``
+    where 100 % cannot reach the target.
     """
     target = drive.hold.current if target is None else target
     temp = np.asarray(ambient, float) + np.zeros(np.shape(supply))
@@ -51,7 +52,7 @@ def required_duty(drive: Drive, supply, ambient, r_factor, l_factor, frequency,
             return float("nan"), temp
         new = float(np.max(need))
         temp = hold_temperature(drive, supply, ambient, r_factor, l_factor, new, frequency)
-        if abs(new - duty) < 1e-9:
+        if abs(new - duty) < tol:
             return new, temp
         duty = new
     return duty, temp
@@ -63,7 +64,9 @@ class PointResults:
 
     ``interrupt_current`` is the largest current the switch turns off (end of the peak or
     the top of the hold ripple); ``peak_switch_voltage`` is the switch voltage it causes.
-    ``release_*`` are for a turn-off from the top of the hold ripple.
+    ``release_*`` are for a turn-off from the top of the hold ripple. ``loop`` is the
+    hold's loop; ``release_loop`` the release's (another freewheel path with split decay,
+    else the same object).
     """
 
     supply: np.ndarray
@@ -82,6 +85,7 @@ class PointResults:
     interrupt_current: np.ndarray
     peak_switch_voltage: np.ndarray
     armature: "ArmatureFigures | None" = None
+    release_loop: Loop | None = None
 
 
 @dataclass(frozen=True)
@@ -173,10 +177,8 @@ def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
     ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
     power = ss.rms**2 * lp.r_coil
     i_off = ss.i_max
-    t_drop = decay_time(drive.release.current, i_off, lp.r_off, lp.v_off, lp.inductance)
-    t_zero = decay_time(0.0, i_off, lp.r_off, lp.v_off, lp.inductance)
-    q, s = decay_integrals(t_zero, i_off, lp.r_off, lp.v_off, lp.inductance)
-    energy = freewheel_element_energy(drive, lp, q, s)
+    lp_rel = loop(drive, supply, finite, r_factor, l_factor, path="release") if split_decay(drive) else lp
+    t_drop, t_zero, energy, i_fast = release_figures(drive, lp, lp_rel, i_off)
     arm = None
     if drive.armature is not None and mechanics:
         arm = _armature_figures(drive, lp, l_factor, ss, frequency, peak_time,
@@ -191,9 +193,45 @@ def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
         energy = freewheel_element_energy(drive, lp, arm.release.charge.reshape(shape),
                                           arm.release.square.reshape(shape))
     interrupt = np.maximum(i_peak, ss.i_max)
+    # The end of the peak and every hold off-time turn off into the hold's path; the
+    # release into the release path (the same one without split decay).
     v_sw = lp.switch_voltage(drive, interrupt)
+    if lp_rel is not lp:
+        v_sw = np.maximum(v_sw, lp_rel.switch_voltage(drive, i_fast))
     return PointResults(supply=supply, ambient=ambient, coil_temp=temp, r_factor=r_factor,
                         l_factor=l_factor, loop=lp, pull_in_time=t_pull, peak_end_current=i_peak,
                         hold=ss, coil_power=power, release_time=t_drop, release_zero_time=t_zero,
                         release_energy=energy, interrupt_current=interrupt,
-                        peak_switch_voltage=v_sw, armature=arm)
+                        peak_switch_voltage=v_sw, armature=arm, release_loop=lp_rel)
+
+
+def release_figures(drive: Drive, lp: Loop, lp_rel: Loop, i_off):
+    """Release from ``i_off`` A: ``(time to drop-out s, time to zero s, energy into the
+    freewheel elements J, current when the release path takes over A)``.
+
+    Without split decay the whole decay takes ``lp_rel`` (= ``lp``). With split decay and
+    a bypass that opens ``lag = -bypass_lead`` s after the final turn-off (a late bypass),
+    the current first decays through the hold's slow path ``lp`` for ``lag`` s, then
+    through the fast path; with ``bypass_lead >= 0`` the bypass is already open and the
+    whole release is fast.
+    """
+    drop = drive.release.current
+    ind = lp.inductance
+    lag = max(-drive.freewheel.bypass_lead, 0.0) if lp_rel is not lp else 0.0
+    if lag == 0.0:
+        t_drop = decay_time(drop, i_off, lp_rel.r_off, lp_rel.v_off, ind)
+        t_zero = decay_time(0.0, i_off, lp_rel.r_off, lp_rel.v_off, ind)
+        q, s = decay_integrals(t_zero, i_off, lp_rel.r_off, lp_rel.v_off, ind)
+        return t_drop, t_zero, freewheel_element_energy(drive, lp_rel, q, s), np.asarray(i_off, float)
+    slow_zero = decay_time(0.0, i_off, lp.r_off, lp.v_off, ind)
+    t_slow = np.minimum(lag, slow_zero)
+    i_lag = decay_current(t_slow, i_off, lp.r_off, lp.v_off, ind)
+    q1, s1 = decay_integrals(t_slow, i_off, lp.r_off, lp.v_off, ind)
+    fast_zero = decay_time(0.0, i_lag, lp_rel.r_off, lp_rel.v_off, ind)
+    q2, s2 = decay_integrals(fast_zero, i_lag, lp_rel.r_off, lp_rel.v_off, ind)
+    t_drop = np.where(i_lag <= drop, decay_time(drop, i_off, lp.r_off, lp.v_off, ind),
+                      lag + decay_time(drop, i_lag, lp_rel.r_off, lp_rel.v_off, ind))
+    t_zero = np.where(i_lag <= 0.0, slow_zero, lag + fast_zero)
+    energy = (freewheel_element_energy(drive, lp, q1, s1)
+              + freewheel_element_energy(drive, lp_rel, q2, s2))
+    return t_drop, t_zero, energy, i_lag

@@ -2,31 +2,32 @@
 
 from __future__ import annotations
 
+import contextlib
 import os
 import tempfile
 from pathlib import Path
+from typing import Iterator
 
 
-def write_atomic(path: str | os.PathLike, data: str | bytes) -> None:
-    """Write ``data`` to ``path`` through a temporary file in the same folder.
+@contextlib.contextmanager
+def atomic_path(path: str | os.PathLike) -> Iterator[str]:
+    """A temporary file beside ``path`` for the caller to write; renamed over ``path``
+    when the block ends normally, deleted when it raises.
 
-    The temporary file is flushed and fsync'ed, then renamed over ``path``
-    (``os.replace`` is atomic on POSIX and Windows), so an existing file is never left
-    truncated or lost if the process dies part-way.
+    The file gets the mode a plain ``open()`` would give (``mkstemp`` makes it 0600), and
+    ``os.replace`` is atomic on POSIX and Windows, so a reader never sees half a file and
+    an existing file is never left truncated if the process dies part-way. A folder that
+    cannot be written raises :class:`OSError` before the block runs.
     """
     target = Path(path)
     folder = target.parent if str(target.parent) else Path(".")
-    payload = data.encode("utf-8") if isinstance(data, str) else data
     fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=folder)
+    os.close(fd)
     try:
-        # mkstemp makes the file 0600; give it the mode a plain open() would have.
         umask = os.umask(0)
         os.umask(umask)
         os.chmod(tmp, 0o666 & ~umask)
-        with os.fdopen(fd, "wb") as handle:
-            handle.write(payload)
-            handle.flush()
-            os.fsync(handle.fileno())
+        yield tmp
         os.replace(tmp, target)
     except BaseException:
         try:
@@ -34,3 +35,14 @@ def write_atomic(path: str | os.PathLike, data: str | bytes) -> None:
         except FileNotFoundError:
             pass
         raise
+
+
+def write_atomic(path: str | os.PathLike, data: str | bytes) -> None:
+    """Write ``data`` (text as UTF-8) to ``path`` atomically, flushed and fsync'ed
+    before the rename (see :func:`atomic_path`)."""
+    payload = data.encode("utf-8") if isinstance(data, str) else data
+    with atomic_path(path) as tmp:
+        with open(tmp, "wb") as handle:
+            handle.write(payload)
+            handle.flush()
+            os.fsync(handle.fileno())

@@ -25,9 +25,14 @@ def plot_design(d: Design) -> bytes:
         ax.plot(w.time * 1e3, w.current, lw=0.9, color=colours.get(key), label=w.label)
     w = d.waveforms["worst"]
     ev = w.events
+    split = w.bypass_on is not None
     ax.axvspan(0, ev["hold"] * 1e3, color="tab:orange", alpha=0.12, label="peak")
-    ax.axvspan(ev["hold"] * 1e3, ev["off"] * 1e3, color="tab:green", alpha=0.08, label="hold (PWM)")
-    ax.axvspan(ev["off"] * 1e3, ev["zero"] * 1e3, color="tab:gray", alpha=0.15, label="release")
+    ax.axvspan(ev["hold"] * 1e3, ev["off"] * 1e3, color="tab:green", alpha=0.08,
+               label="hold (PWM, slow decay: bypass on)" if split else "hold (PWM)")
+    ax.axvspan(ev["off"] * 1e3, ev["zero"] * 1e3, color="tab:gray", alpha=0.15,
+               label="release (fast decay: bypass open)" if split else "release")
+    if split:
+        _bypass_trace(d, ax, colours)
     ax.axhline(d.pull_in.current_a, color="k", ls="--", lw=0.8)
     ax.text(0, d.pull_in.current_a, " pull-in", va="bottom", fontsize=8)
     ax.axhline(d.hold.current_a, color="k", ls=":", lw=0.8)
@@ -47,6 +52,21 @@ def plot_design(d: Design) -> bytes:
     buf = io.BytesIO()
     fig.savefig(buf, format="png")
     return buf.getvalue()
+
+
+def _bypass_trace(d: Design, ax, colours: dict) -> None:
+    """Split decay: the bypass switch state on a second axis, and where it opens."""
+    ax_b = ax.twinx()
+    for key, w in d.waveforms.items():
+        c = colours.get(key)
+        ax_b.step(w.time * 1e3, w.bypass_on, where="post", color=c, lw=0.8, ls="--", alpha=0.7)
+        ax.axvline(w.events["bypass_open"] * 1e3, color=c, ls="--", lw=0.7)
+    s = d.split_decay
+    ax_b.set_ylim(-0.1, 4.0)
+    ax_b.set_yticks([0, 1], ["open", "on"])
+    ax_b.set_ylabel("bypass switch (dashed)", fontsize=8)
+    ax.text(0.01, 0.97, f"hold via {s.hold_path}\nrelease via {s.release_path}",
+            transform=ax.transAxes, va="top", fontsize=7)
 
 
 def _armature_panel(d: Design, ax, ax_x, colours: dict) -> None:

@@ -6,7 +6,7 @@ from rich.console import Console
 from rich.markup import escape
 from rich.table import Table
 
-from .design import Design
+from .design import ELEMENT_NAMES, Design
 from .units import format_si
 
 
@@ -34,6 +34,7 @@ def summary_table(d: Design) -> Table:
          f"{h.discontinuous_corners} corner(s) discontinuous" if h.discontinuous_corners else "continuous conduction"),
         ("coil power / temperature", f"{h.coil_power_w:.3g} W / {h.coil_temp_c:.1f} degC",
          f"hottest at {h.hottest_corner}"),
+        *_loss_rows(d),
         ("release time", _ms(r.time_s), f"to {r.dropout_current_a:.4g} A via {r.freewheel}; zero after {_ms(r.zero_time_s)}"),
         ("peak switch voltage", f"{r.peak_switch_voltage_v:.4g} V",
          f"limit {r.switch_limit_v:.4g} V ({r.switch_rating_v:.4g} V rating, derated)"),
@@ -46,6 +47,43 @@ def summary_table(d: Design) -> Table:
     for row in rows:
         t.add_row(*(escape(c) for c in row))
     return t
+
+
+def _loss_rows(d: Design) -> list:
+    """Hold powers in the freewheel path and the switch; split decay, or what it would save."""
+    h = d.hold
+    if h.freewheel_elements_w is None or h.freewheel_power_w != h.freewheel_power_w:  # nan: none
+        return []
+    names = ELEMENT_NAMES
+    parts = ", ".join(f"{names[n]} {w:.3g} W" for n, w in h.freewheel_elements_w.items()) or "none"
+    sw = d.drive.switch
+    how = (f"conduction {h.switch_conduction_w:.3g} W + switching {h.switch_switching_w:.3g} W"
+           if sw.rise_time > 0 or sw.fall_time > 0 else "conduction (no rise/fall times: switching not estimated)")
+    rows = [
+        ("hold freewheel power", f"{h.freewheel_power_w:.3g} W",
+         f"{parts} via {h.decay_path}; at {h.freewheel_power_corner}"),
+        ("hold switch power", f"{h.switch_power_w:.3g} W", f"{how}; at {h.switch_power_corner}"),
+    ]
+    s = d.split_decay
+    if s is not None:
+        when = (f"{s.lead_counts} counts before the final turn-off" if s.bypass_lead_s > 0 else
+                f"{s.lag_counts} counts after the final turn-off" if s.bypass_lead_s < 0 else
+                "with the final turn-off")
+        rows.append(("split decay", "hold slow / release fast",
+                     f"hold via {s.hold_path}, release via {s.release_path}; bypass opens "
+                     f"{format_si(abs(s.bypass_lead_s), 's')} = {when}"))
+    sv = h.split_decay_saving
+    if sv:
+        assumed = (f"; assuming a {sv['assumed_diode_drop_v']:g} V freewheel diode"
+                   if sv.get("assumed_diode_drop_v") else "")
+        rows.append((
+            "split decay would save", f"{sv['freewheel_power_w']:.3g} W",
+            f"the {names[sv['fast_element']]} takes {sv['fast_element_power_w']:.3g} W of the hold; "
+            f"with a bypass during the hold: duty {h.duty:.4f} -> {sv['duty_split']:.4f} "
+            f"({sv['duty_change']:+.4f}), ripple {h.ripple_a * 1e3:.4g} -> {sv['ripple_split_a'] * 1e3:.4g} mA "
+            f"({sv['ripple_change_a'] * 1e3:+.3g} mA), coil {sv['coil_power_change_w']:+.3g} W; "
+            f"costs one pin and a switch{assumed}"))
+    return rows
 
 
 def _armature_rows(d: Design, rows: list) -> list:

@@ -64,8 +64,13 @@ def sent_stream(draw):
             messages.append(Samples(index, codes))
             index = (index + len(codes)) & 0xFFFFFFFF
         elif kind == "event":
-            messages.append(Event(draw(st.sampled_from(list(EventKind))), index,
-                                  draw(st.integers(-2**31, 2**31 - 1))))
+            event_kind = draw(st.sampled_from(list(EventKind)))
+            if event_kind == EventKind.PAUSE:   # the device skips `value` indices on purpose
+                value = draw(st.integers(1, 2**20))
+                messages.append(Event(event_kind, index, value))
+                index = (index + value) & 0xFFFFFFFF
+            else:
+                messages.append(Event(event_kind, index, draw(st.integers(-2**31, 2**31 - 1))))
         else:
             messages.append(Info(draw(st.integers(1, 2**32 - 1)), draw(st.integers(1, 1000)),
                                  draw(st.integers(1, 16)), None, 0, draw(st.text(max_size=10))))
@@ -136,6 +141,10 @@ def expected_outcome(stream: bytes, originals: dict[bytes, int], messages: list)
             if next_index is not None:
                 missing += (m.first_index - next_index) & 0xFFFFFFFF
             next_index = m.next_index
+        elif isinstance(m, Event) and m.kind == EventKind.PAUSE:   # protocol.md section 5
+            if next_index is not None:
+                missing += (m.index - next_index) & 0xFFFFFFFF
+            next_index = (m.index + m.value) & 0xFFFFFFFF
     return delivered, damaged, duplicates, lost, sync, missing
 
 

@@ -8,7 +8,7 @@ Layout (version 1, all little-endian; full description in ``docs/capture-format.
 
 Record kinds (:class:`RecordKind`): ``1`` one ADC sample (``value`` = code, ``index`` =
 sample index); ``2`` an event (``aux`` = event kind as on the bench link: 1 on, 2 peak
-end, 3 off, 4 position switch, ...; ``value`` = its value when 0..65535); ``3`` frames
+end, 3 off, 4 position switch, ..., 9 pause; ``value`` = its value when 0..65535); ``3`` frames
 lost on the link (``value`` = how many, ``index`` = first sample index received after
 them); ``4`` frame errors (``aux`` 0 = CRC failures, 1 = malformed frames; ``value`` =
 how many); ``5`` the high 16 bits of the preceding event's value, for values outside
@@ -444,10 +444,46 @@ class Capture:
 
     @property
     def samples_missing(self) -> int:
-        """Sample indices skipped between received samples (lost frames, device overruns)."""
+        """Sample indices skipped between received samples (lost frames, device overruns).
+
+        Indices that a ``pause`` event covers (the device skipped them on purpose) are not
+        missing."""
         if self.index.size < 2:
             return 0
-        return int(self.index[-1] - self.index[0] + 1 - self.index.size)
+        skipped = int(self.index[-1] - self.index[0] + 1 - self.index.size)
+        return skipped - self.samples_paused
+
+    @property
+    def samples_paused(self) -> int:
+        """Sample indices between received samples that ``pause`` events cover."""
+        pauses = [(e.index, e.index + e.value) for e in self.events
+                  if e.kind == EventKind.PAUSE and e.value > 0]
+        if not pauses or self.index.size < 2:
+            return 0
+        # merge the paused ranges, then the coverage below x is a piecewise-linear function
+        pauses.sort()
+        merged: list[list[int]] = []
+        for a, b in pauses:
+            if merged and a <= merged[-1][1]:
+                merged[-1][1] = max(merged[-1][1], b)
+            else:
+                merged.append([a, b])
+        lo = np.array([m[0] for m in merged], np.int64)
+        hi = np.array([m[1] for m in merged], np.int64)
+        below = np.concatenate([[0], np.cumsum(hi - lo)])
+
+        def covered(x: np.ndarray) -> np.ndarray:   # paused indices < x
+            k = np.searchsorted(lo, x, side="right")
+            prev = np.maximum(k - 1, 0)
+            inside = np.where(k > 0, np.clip(x - lo[prev], 0, hi[prev] - lo[prev]), 0)
+            return below[np.maximum(k - 1, 0)] * (k > 0) + inside
+
+        step = np.diff(self.index)
+        g = np.flatnonzero(step > 1)
+        if g.size == 0:
+            return 0
+        start, end = self.index[g] + 1, self.index[g + 1]     # each gap: [start, end)
+        return int(np.sum(covered(end) - covered(start)))
 
     @property
     def lost_frames(self) -> int:

@@ -35,6 +35,10 @@ class EventKind(IntEnum):
     """Temperature at the coil (or board) as measured by the device; ``value`` in milli-degC."""
     EVENTS_LOST = 8
     """The device dropped events (its event queue was full); ``value`` how many."""
+    PAUSE = 9
+    """The device sends no samples from ``index`` for ``value`` samples: nothing happened,
+    they were skipped on purpose (idle between recorded actuations), not lost. Receivers
+    do not count them as missing."""
 
 
 class Opcode(IntEnum):

@@ -252,10 +252,13 @@ class DecoderStats:
     sequence_restarts : backward sequence steps (a device restart); no loss counted.
     samples : ADC samples delivered.
     samples_missing : sample indices skipped between consecutive SAMPLES messages
-        (samples in lost frames, plus samples the device dropped itself).
+        (samples in lost frames, plus samples the device dropped itself); indices a
+        PAUSE event covers are not missing.
     index_restarts : backward sample-index steps (a device restart).
     sync_bytes : bytes before the first delimiter that did not form a valid frame
         (joining a stream part-way through a frame; not an error).
+    samples_paused : sample indices the device said it skipped on purpose (PAUSE
+        events: idle between recorded actuations; neither received nor missing).
     """
 
     bytes: int = 0
@@ -270,6 +273,7 @@ class DecoderStats:
     samples_missing: int = 0
     index_restarts: int = 0
     sync_bytes: int = 0
+    samples_paused: int = 0
 
     @property
     def errors(self) -> int:
@@ -320,6 +324,7 @@ class FrameDecoder:
         self._samples_missing = 0
         self._index_restarts = 0
         self._sync_bytes = 0
+        self._samples_paused = 0
 
     @property
     def stats(self) -> DecoderStats:
@@ -327,7 +332,7 @@ class FrameDecoder:
         return DecoderStats(self._bytes, self._frames, self._crc_errors, self._malformed,
                             self._unknown, self._lost, self._duplicates, self._restarts,
                             self._samples, self._samples_missing, self._index_restarts,
-                            self._sync_bytes)
+                            self._sync_bytes, self._samples_paused)
 
     @property
     def pending_bytes(self) -> int:
@@ -460,12 +465,20 @@ class FrameDecoder:
         self._frames += 1
         out.append(message)
 
+    def _pause(self, index: int, value: int) -> None:
+        self._next_index, missing, restarts = account_pause(self._next_index, index, value)
+        self._samples_missing += missing
+        self._index_restarts += restarts
+        self._samples_paused += value
+
     def _other(self, frame_type: int, raw: bytearray, size: int, seq: int) -> Message | None:
         if frame_type == FrameType.EVENT:
             if size != _EVENT.size:
                 self._malformed += 1
                 return None
             kind, index, value = _EVENT.unpack_from(raw, HEADER_SIZE)
+            if kind == EventKind.PAUSE and value > 0:
+                self._pause(index, value)
             # A kind of a later version is delivered as a plain int.
             return Event(_known(EventKind, kind), index, value, seq)
         if frame_type == FrameType.INFO:
@@ -487,6 +500,24 @@ class FrameDecoder:
             return Reply(command_seq, _known(Opcode, opcode), _known(ReplyStatus, status), value, seq)
         self._unknown += 1
         return None
+
+
+def account_pause(next_index: int | None, index: int, value: int) -> tuple[int | None, int, int]:
+    """Sample-index accounting of a PAUSE event (``value`` > 0 samples from ``index``).
+
+    ``next_index`` is the index the receiver expects next (``None`` before any). Returns
+    ``(next_index after the pause, samples missing before it, index restarts)``: indices
+    between the expected one and the pause were lost (forward step), a backward step is a
+    restart; the paused indices themselves are skipped without counting them missing.
+    """
+    missing = restarts = 0
+    if next_index is not None and index != next_index:
+        gap = (index - next_index) & 0xFFFFFFFF
+        if gap < INDEX_HALF_RANGE:
+            missing = gap
+        else:
+            restarts = 1
+    return (index + value) & 0xFFFFFFFF, missing, restarts
 
 
 def _known(enum: type[IntEnum], value: int) -> int:

@@ -17,6 +17,10 @@ The chain per sample, at the board's ADC sample rate ``f_s``:
    then the code ``floor(V / V_ref 2^bits)`` clipped to ``0 .. 2^bits - 1`` (the design's
    ADC convention, :func:`coildrive.design._adc_code`).
 
+The steps are separate functions (:func:`actuation_waveform`, :func:`sense_current`,
+:func:`current_codes`, :func:`actuation_events`) so that the virtual bench device
+(:mod:`coildrive.bench.device`) streams exactly these codes.
+
 Events carry the index of the first sample taken at or after them (the bench link's
 convention): ``on`` at switch-on, ``peak_end`` when the hold starts, ``off`` at the final
 switch-off, and ``switch`` (position switch) when the waveform reports an armature
@@ -108,6 +112,68 @@ def _seated_changes(w: Waveform) -> list[tuple[float, int]]:
     return [(float(w.time[k]), int(seated[k])) for k in change]
 
 
+def actuation_waveform(drive: Drive, supply: float, coil_temp: float, peak_time: float,
+                       duty: float, frequency: float, hold_time: float, *,
+                       resistance_scale: float = 1.0, inductance_scale: float = 1.0,
+                       fault: str | None = None, shorted_fraction: float = 0.2,
+                       waveform: WaveformFunction = actuation) -> Waveform:
+    """The model actuation of the real coil: the drive as the fault makes it, the coil's R
+    and L scaled (s, A; switch-on at t = 0). The current of an ``open`` fault is zeroed
+    later, by :func:`sense_current` (the switch schedule and events are the drive's)."""
+    model_drive, r_fault, l_fault = faulty_drive(drive, fault, shorted_fraction)
+    return waveform(model_drive, supply, coil_temp, peak_time, duty, frequency, hold_time,
+                    resistance_scale * r_fault, inductance_scale * l_fault, label="synthetic")
+
+
+def sense_current(drive: Drive, w: Waveform, t_rel: np.ndarray, fault: str | None = None) -> np.ndarray:
+    """Current in A that the board's sense resistor carries at times ``t_rel`` (s from the
+    switch-on of ``w``; every ``t_rel`` inside the waveform): steps 1 and 2 of the chain."""
+    i = np.interp(t_rel, w.time, w.current)
+    if drive.board.sense.position != "coil":
+        i = np.where(_switch_state(w, t_rel), i, 0.0)
+    if fault == "open":
+        i = np.zeros_like(i)
+    return i
+
+
+def current_codes(drive: Drive, current: np.ndarray, noise: np.ndarray | None = None) -> np.ndarray:
+    """ADC codes (uint16) of sense currents in A, plus ``noise`` in codes (step 3)."""
+    board = drive.board
+    vpa, _ = adc_scaling(drive)
+    volts = current * vpa
+    codes = volts / board.adc.reference * 2**board.adc.bits
+    if noise is not None:
+        codes = codes + noise
+    return np.clip(np.floor(codes), 0, 2**board.adc.bits - 1).astype(np.uint16)
+
+
+def first_sample_at_or_after(time_s: float, sample_rate: float) -> int:
+    """Index of the first sample taken at or after ``time_s`` (the bench link's event stamp)."""
+    return int(math.ceil(time_s * sample_rate - 1e-9))
+
+
+def actuation_events(w: Waveform, t_on: float, sample_rate: float,
+                     fault: str | None = None) -> list[CaptureEvent]:
+    """Events of one actuation switched on at ``t_on`` s: ``on``, ``peak_end``, ``off`` and
+    the position switch's changes (none with an open coil), stamped with sample indices."""
+    stamp = (lambda t: first_sample_at_or_after(t_on + t, sample_rate))
+    out = [CaptureEvent(stamp(w.events[name]), int(kind))
+           for name, kind in (("on", EventKind.ON), ("hold", EventKind.PEAK_END), ("off", EventKind.OFF))
+           if name in w.events]
+    if fault != "open":
+        out += [CaptureEvent(stamp(t), int(EventKind.SWITCH), level) for t, level in _seated_changes(w)]
+    return out
+
+
+def operating_point(drive: Drive, supply: float | None, coil_temp: float | None) -> tuple[float, float]:
+    """``(supply V, coil temperature degC)``: the given values, or the drive's nominal supply
+    and its reference temperature clipped into the ambient range (as
+    :func:`coildrive.corners.nominal_point`)."""
+    nominal = nominal_point(drive)
+    return (float(nominal.supply[0]) if supply is None else float(supply),
+            float(nominal.ambient[0]) if coil_temp is None else float(coil_temp))
+
+
 def synth_capture(drive: Drive, peak_time: float, duty: float, frequency: float, *,
                   supply: float | None = None, coil_temp: float | None = None,
                   hold_time: float = 0.02, actuations: int = 1, idle_time: float = 0.005,
@@ -157,16 +223,13 @@ def synth_capture(drive: Drive, peak_time: float, duty: float, frequency: float,
     for name, value in (("resistance_scale", resistance_scale), ("inductance_scale", inductance_scale)):
         if not (math.isfinite(value) and value > 0):
             raise ValueError(f"{name} {value} must be > 0")
-    nominal = nominal_point(drive)
-    supply = float(nominal.supply[0]) if supply is None else float(supply)
-    coil_temp = float(nominal.ambient[0]) if coil_temp is None else float(coil_temp)
-    model_drive, r_fault, l_fault = faulty_drive(drive, fault, shorted_fraction)
-    w = waveform(model_drive, supply, coil_temp, peak_time, duty, frequency, hold_time,
-                 resistance_scale * r_fault, inductance_scale * l_fault, label="synthetic")
+    supply, coil_temp = operating_point(drive, supply, coil_temp)
+    w = actuation_waveform(drive, supply, coil_temp, peak_time, duty, frequency, hold_time,
+                           resistance_scale=resistance_scale, inductance_scale=inductance_scale,
+                           fault=fault, shorted_fraction=shorted_fraction, waveform=waveform)
     board = drive.board
     fs = float(board.adc.sample_rate)
-    vpa, apc = adc_scaling(drive)
-    full = 2**board.adc.bits - 1
+    _, apc = adc_scaling(drive)
     rng = np.random.default_rng(seed)
     length = float(w.events["zero"])
 
@@ -182,35 +245,16 @@ def synth_capture(drive: Drive, peak_time: float, duty: float, frequency: float,
     sense = np.zeros(n)
     capture_events: list[CaptureEvent] = []
     seat = _seated_changes(w)
-    coil_path = board.sense.position == "coil"
-
-    def first_at_or_after(time_s: float) -> int:
-        return int(math.ceil(time_s * fs - 1e-9))
 
     for t_on in on_times:
-        k0 = first_at_or_after(t_on)
+        k0 = first_sample_at_or_after(t_on, fs)
         k1 = min(int(math.floor((t_on + length) * fs)), n - 1)
         k = np.arange(k0, k1 + 1)
-        t_rel = k / fs - t_on
-        i = np.interp(t_rel, w.time, w.current)
-        if not coil_path:
-            i = np.where(_switch_state(w, t_rel), i, 0.0)
-        if fault == "open":
-            i = np.zeros_like(i)
-        sense[k0:k1 + 1] = i
+        sense[k0:k1 + 1] = sense_current(drive, w, k / fs - t_on, fault)
         if events:
-            for name, kind in (("on", EventKind.ON), ("hold", EventKind.PEAK_END), ("off", EventKind.OFF)):
-                capture_events.append(CaptureEvent(first_index + first_at_or_after(t_on + w.events[name]),
-                                                   int(kind)))
-            for t_change, level in seat:
-                if fault != "open":
-                    capture_events.append(CaptureEvent(first_index + first_at_or_after(t_on + t_change),
-                                                       int(EventKind.SWITCH), level))
-    volts = sense * vpa
-    codes = volts / board.adc.reference * 2**board.adc.bits
-    if noise_codes > 0:
-        codes = codes + rng.normal(0.0, noise_codes, n)
-    codes = np.clip(np.floor(codes), 0, full).astype(np.uint16)
+            capture_events += [CaptureEvent(first_index + e.index, e.kind, e.value)
+                               for e in actuation_events(w, t_on, fs, fault)]
+    codes = current_codes(drive, sense, rng.normal(0.0, noise_codes, n) if noise_codes > 0 else None)
     capture_events.sort(key=lambda e: e.index)
     extra = {"resistance_scale": resistance_scale, "inductance_scale": inductance_scale,
              "fault": fault, "noise_codes": noise_codes, "seed": seed}

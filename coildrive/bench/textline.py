@@ -11,7 +11,9 @@ by commas, integers in decimal, spaces around fields ignored::
 
 Event kind names are the :class:`~coildrive.bench.messages.EventKind` names in lower
 case (``on``, ``peak_end``, ``off``, ``switch``, ``overrun``, ``supply``,
-``temperature``, ``events_lost``). The sample rate may be an integer, a decimal
+``temperature``, ``events_lost``, ``pause``; a ``pause,<index>,<value>`` line says
+the device sends no samples from ``index`` for ``value`` samples: they are not counted
+as missing). The sample rate may be an integer, a decimal
 (``1234.5``) or a ratio (``84000000/420``). A line longer than :data:`MAX_LINE` bytes or
 that fits none of these forms is counted as malformed and skipped.
 
@@ -30,7 +32,7 @@ from fractions import Fraction
 import numpy as np
 
 from .messages import Event, EventKind, Info, Message, Samples
-from .protocol import INDEX_HALF_RANGE, MAX_FIRMWARE_ID, DecoderStats
+from .protocol import INDEX_HALF_RANGE, MAX_FIRMWARE_ID, DecoderStats, account_pause
 
 MAX_LINE = 256
 """Longest line accepted, bytes (newline not counted)."""
@@ -60,6 +62,7 @@ class TextLineDecoder:
         self._samples = 0
         self._samples_missing = 0
         self._index_restarts = 0
+        self._samples_paused = 0
 
     @property
     def stats(self) -> DecoderStats:
@@ -67,7 +70,8 @@ class TextLineDecoder:
         return DecoderStats(bytes=self._bytes, frames=self._lines,
                             malformed_frames=self._malformed, samples=self._samples,
                             samples_missing=self._samples_missing,
-                            index_restarts=self._index_restarts)
+                            index_restarts=self._index_restarts,
+                            samples_paused=self._samples_paused)
 
     def feed(self, data: bytes | bytearray | memoryview) -> list[Message]:
         """Decode the complete lines in ``data``; keep a partial last line for later."""
@@ -142,6 +146,12 @@ class TextLineDecoder:
                 out.append(self._samples_message(first, codes))
                 codes = []
             out.append(message)
+            if isinstance(message, Event) and message.kind == EventKind.PAUSE and message.value > 0:
+                self._next_index, missing, restarts = account_pause(self._next_index, message.index,
+                                                                    message.value)
+                self._samples_missing += missing
+                self._index_restarts += restarts
+                self._samples_paused += message.value
         if codes:
             out.append(self._samples_message(first, codes))
         return out

@@ -8,7 +8,7 @@ from __future__ import annotations
 import typer
 
 from .. import __version__
-from . import bench_cmd, design_cmd, stream_cmd, tune_cmd
+from . import bench_cmd, capture_cmd, design_cmd, emulate_cmd, stream_cmd, tune_cmd
 from .common import state
 
 app = typer.Typer(
@@ -41,6 +41,8 @@ app.command("tune")(tune_cmd.tune_command)
 app.command("firmware-stream")(stream_cmd.firmware_stream)
 app.command("check")(bench_cmd.check_command)
 app.command("fit")(bench_cmd.fit_command)
+app.command("emulate")(emulate_cmd.emulate_command)
+app.command("capture")(capture_cmd.capture_command)
 
 
 def main() -> None:

@@ -113,12 +113,24 @@ def simulate_command(
         w = current_mode_actuation(d.drive, d.extra["current_thresholds"], v, t, d.pull_in.peak_time_s,
                                    h, r_factor, l_factor, points)
     else:
+        s = d.split_decay
+        if s is not None and s.lead_counts > s.on_time_counts:
+            raise InputError(str(drive), "freewheel.bypass_lead",
+                             f"{d.drive.freewheel.bypass_lead * 1e6:.4g} us is longer than the hold "
+                             f"on-time ({s.on_time_counts / s.count_rate_hz * 1e6:.4g} us): the "
+                             "bypass would open during an off-time")
         w = actuation(d.drive, v, t, d.pull_in.peak_time_s, d.hold.duty, d.hold.frequency_hz, h,
                       r_factor, l_factor, points)
     write_atomic(csv, w.to_csv())
     status(f"wrote {csv}: {len(w.time)} samples, peak {d.pull_in.peak_time_s * 1e3:.4g} ms, "
            f"hold duty {d.hold.duty:.4f} at {d.hold.frequency_hz:.6g} Hz, off at "
            f"{w.events['off'] * 1e3:.4g} ms, zero at {w.events['zero'] * 1e3:.4g} ms")
+    if w.bypass_on is not None:
+        s = d.split_decay
+        lead = d.drive.freewheel.bypass_lead
+        status(f"split decay: hold via {s.hold_path}, release via {s.release_path}; bypass opens at "
+               f"{w.events['bypass_open'] * 1e3:.6g} ms ({abs(lead) * 1e6:.4g} us "
+               f"{'before' if lead >= 0 else 'after'} the final turn-off; column bypass_on)")
     if w.position is not None:
         ev = w.events
 

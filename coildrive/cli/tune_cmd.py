@@ -1,4 +1,4 @@
-"""``coildrive tune``: offline hold tuning (the live bench mode comes with the bench link)."""
+"""``coildrive tune``: offline hold tuning, and live on the bench with ``--port``."""
 
 from __future__ import annotations
 
@@ -49,16 +49,48 @@ def tune_command(
     prefix: str = typer.Option("COIL", "--prefix", help="Name prefix of the header's macros."),
     min_frequency: str = typer.Option("20 kHz", "--min-frequency", help="Lowest PWM frequency swept (default: the audible limit)."),
     max_frequency: Optional[str] = typer.Option(None, "--max-frequency", help="Highest PWM frequency swept (default: board timer.max_pwm_frequency, else 100 kHz)."),
-    margin: float = typer.Option(1.0, "--margin", help="Factor >= 1 on the minimum hold current (hold.current)."),
+    margin: Optional[float] = typer.Option(None, "--margin", help="Factor >= 1 on the minimum hold current (hold.current; default 1). With --port: on the bench drop-out current (default: armature.current_margin)."),
     levels: int = typer.Option(8, "--levels", help="Hold-current levels swept upward from the target."),
     level_step: str = typer.Option("5 %", "--level-step", help='Step between levels, e.g. "5 %" or 0.05.'),
     max_ripple: Optional[str] = typer.Option(None, "--max-ripple", help='Ripple limit, peak-to-peak: "30 mA" or "20 %" of the target (default 20 %).'),
     min_steps: int = typer.Option(64, "--min-steps", help="Fewest compare steps per PWM period."),
     top: int = typer.Option(20, "--top", help="Candidates shown and listed in the JSON."),
+    port: Optional[str] = typer.Option(None, "--port", help="Tune live on the bench: the device's serial port (a path or a pyserial URL)."),
+    baud: Optional[int] = typer.Option(None, "--baud", help="With --port: line rate (default: the board's [link] baud)."),
+    capture: Optional[Path] = typer.Option(None, "--capture", help="With --port: capture file (default: tune-DRIVE-UTCTIME.cdcap here; the log beside it, .tune.json)."),
+    repeats: Optional[int] = typer.Option(None, "--repeats", help="With --port: searches for the spread (default 3)."),
+    supply: Optional[str] = typer.Option(None, "--supply", help='With --port: bench bus voltage (default: the device\'s SUPPLY events, else the nominal supply).'),
+    coil_temp: Optional[str] = typer.Option(None, "--coil-temp", help="With --port: coil temperature (default: the device's TEMPERATURE events, else the reference temperature)."),
+    hold_time: Optional[str] = typer.Option(None, "--hold-time", help="With --port: hold of each actuation (default: 10 time constants of the hold)."),
+    resolution: Optional[str] = typer.Option(None, "--resolution", help='With --port: search resolution, a fraction of the design duty (default "1 %").'),
+    detect: Optional[str] = typer.Option(None, "--detect", help="With --port: drop-out from the position switch or the current's signature: auto (default), switch, signature."),
 ) -> None:
     """Sweep PWM frequency and hold current over every corner; recommend the least-power
     hold that stays seated. Exit 1 when nothing is feasible or the design of the
-    recommendation fails a check."""
+    recommendation fails a check.
+
+    With --port: find the drop-out duty on the bench (a coildrive bench-link device) and
+    recommend the hold from it; exit 1 on a stuck armature, an open coil, an
+    over-current, no drop-out, or a recommendation whose design fails; 130 on Ctrl-C.
+    The device is sent STOP on every exit."""
+    live = {"--baud": baud, "--capture": capture, "--repeats": repeats, "--supply": supply,
+            "--coil-temp": coil_temp, "--hold-time": hold_time, "--resolution": resolution,
+            "--detect": detect}
+    if port is not None:
+        offline = {"--plot": plot is not None, "--min-frequency": min_frequency != "20 kHz",
+                   "--max-frequency": max_frequency is not None, "--levels": levels != 8,
+                   "--level-step": level_step != "5 %", "--max-ripple": max_ripple is not None,
+                   "--min-steps": min_steps != 64, "--top": top != 20}
+        for option, given in offline.items():
+            if given:
+                raise InputError(option, "", "belongs to the offline sweep; not with --port")
+        _live(drive, board, port, as_json, header, prefix, margin, **{k[2:].replace("-", "_"): v for k, v in live.items()})
+        return
+    for option, value in live.items():
+        if value is not None:
+            raise InputError(option, "", "is for the live bench tuning: give --port too")
+    if margin is None:
+        margin = 1.0
     from ..tune import TuneOptions, recommended_design, tune
 
     amps, frac = _ripple(max_ripple)
@@ -101,4 +133,100 @@ def tune_command(
     if header is not None:
         from ..codegen.header import generate_header
         write_atomic(header, generate_header(des, prefix))
+        status(f"wrote header {header}")
+
+
+def _live(drive: Path, board: Optional[str], port: str, as_json: bool, header: Optional[Path], prefix: str,
+          margin: Optional[float], baud: Optional[int], capture: Optional[Path], repeats: Optional[int],
+          supply: Optional[str], coil_temp: Optional[str], hold_time: Optional[str],
+          resolution: Optional[str], detect: Optional[str]) -> None:
+    """``tune --port``: the live procedure of :mod:`coildrive.tune_live` over a DeviceLink."""
+    from datetime import datetime, timezone
+
+    from ..bench.link import DeviceLink, LinkError
+    from ..bench.synth import adc_scaling
+    from ..design import design
+    from ..tune_live import LiveOptions, LiveTuner
+
+    options = LiveOptions(
+        repeats=3 if repeats is None else repeats,
+        supply=None if supply is None else parse_quantity(supply, "voltage", "--supply"),
+        coil_temp=None if coil_temp is None else parse_quantity(coil_temp, "temperature", "--coil-temp"),
+        hold_time=0.0 if hold_time is None else parse_quantity(hold_time, "time", "--hold-time"),
+        resolution=0.01 if resolution is None else parse_quantity(resolution, "dimensionless", "--resolution"),
+        margin=margin, detect=detect or "auto")
+    options.check()
+    if options.hold_time == 0 and hold_time is not None:
+        raise InputError("--hold-time", "", f"{hold_time!r} must be greater than zero")
+    if baud is not None and not baud > 0:
+        raise InputError("--baud", "", f"{baud} must be greater than zero")
+    if header is not None:
+        from ..codegen.header import check_prefix
+        check_prefix(prefix)
+    d = load_drive(drive, board)
+    if d.hold.mode != "voltage":
+        raise InputError(d.source, "hold.mode", "live tuning steps the duty of a voltage-mode hold; for "
+                         'mode = "current" the thresholds come from coildrive design')
+    des = design(d)
+    if not des.ok:
+        # a failing design (switch voltage, coil temperature, ...) must not drive hardware
+        status(f"coildrive tune: the design of {drive} fails {', '.join(c.name for c in des.failed)}: fix "
+               "it (coildrive design) before tuning it on the bench; nothing was sent to the device")
+        raise typer.Exit(1)
+    if capture is None:
+        stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+        capture = Path(f"tune-{d.name}-{stamp}.cdcap")
+    log = capture.with_name(capture.stem + ".tune.json")
+    meta = {"drive": d.name, "board": d.board.name, "sense_position": d.board.sense.position,
+            "amps_per_code": adc_scaling(d)[1], "peak_time_s": des.pull_in.peak_time_s,
+            "hold_duty": des.hold.duty, "hold_frequency_hz": des.hold.frequency_hz,
+            "extra": {"procedure": "coildrive tune --port (live hold tuning)"}}
+    if options.supply is not None:
+        meta["supply_v"] = options.supply
+    if options.coil_temp is not None:
+        meta["coil_temp_c"] = options.coil_temp
+    line_rate = baud or d.board.link.baud
+    from rich.console import Console
+    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
+
+    progress = Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
+                        TimeElapsedColumn(), console=Console(stderr=True), transient=False)
+    task = progress.add_task("seat check at the design duty", total=None)
+
+    def report(done: int, total: int, message: str) -> None:
+        progress.update(task, completed=done, total=max(total, done), description=message)
+
+    try:
+        link = DeviceLink(port, baud=line_rate, capture=capture, meta=meta)
+    except LinkError as err:
+        raise InputError("--port", "", str(err)) from None
+    with link:
+        status(f"coildrive tune: live on {port} at {line_rate} baud; capture {capture}, log {log}")
+        with progress:
+            result = LiveTuner(link, des, options, progress=report).run()
+    from ..tune_live_report import live_dict, print_live
+
+    doc = live_dict(result, port=port, capture=str(capture), log=str(log))
+    write_atomic(log, json.dumps(doc, indent=2) + "\n")
+    if as_json:
+        typer.echo(json.dumps(doc, indent=2))
+    else:
+        from rich.console import Console as _Console
+        print_live(result, _Console())
+    if result.failure is not None:
+        code, message = result.failure
+        status(f"coildrive tune: {message}")
+        status(f"coildrive tune: {result.stop_detail}")
+        raise typer.Exit(130 if code == "interrupted" else 1)
+    if not result.stopped:
+        status(f"coildrive tune: {result.stop_detail}")
+        raise typer.Exit(1)
+    rec = result.recommendation
+    if not rec.design_ok:
+        status(f"coildrive tune: the design with the recommended hold fails {', '.join(rec.design_failed)}"
+               + (f"; header {header} not written" if header is not None else ""))
+        raise typer.Exit(1)
+    if header is not None:
+        from ..codegen.header import generate_header
+        write_atomic(header, generate_header(rec.design, prefix))
         status(f"wrote header {header}")

@@ -100,6 +100,7 @@ class HeaderView:
         ]
         if d.armature is not None:
             self.constants += _armature_constants(d, m)
+        self.bypass_constants = _bypass_constants(d, m)
         self.table = list(zip(d.duty_table.adc_codes, d.duty_table.compare_ticks, d.duty_table.supply_v))
         from ..current_hold import header_checks, header_constants, header_summary, relabel_fallback
         self.constants = relabel_fallback(d, m, self.constants)
@@ -128,6 +129,23 @@ def _armature_constants(d: Design, m: str) -> list[Constant]:
                  f"latest armature seat {a.seat_time_s * 1e3:.4g} ms (worst corner)"),
         Constant(f"{m}_RELEASE_OPEN_TICKS", math.ceil(a.release_open_time_s * rate - 1e-9),
                  f"armature back open {a.release_open_time_s * 1e3:.4g} ms after off (worst corner)"),
+    ]
+
+
+def _bypass_constants(d: Design, m: str) -> list[Constant]:
+    """With split decay: the bypass pin's timing in PWM-timer counts (at the timer's count
+    rate, clock / prescaler) relative to the main switch's final turn-off."""
+    s = d.split_decay
+    if s is None:
+        return []
+    return [
+        Constant(f"{m}_SPLIT_DECAY", 1, f"hold via {s.hold_path}; release via {s.release_path}"),
+        Constant(f"{m}_BYPASS_LEAD_COUNTS", s.lead_counts,
+                 f"open the bypass this many timer counts before the final turn-off "
+                 f"({s.lead_counts / s.count_rate_hz * 1e6:.4g} us, inside the last on-time)"),
+        Constant(f"{m}_BYPASS_LAG_COUNTS", s.lag_counts,
+                 f"or this many counts after it ({s.lag_counts / s.count_rate_hz * 1e6:.4g} us; "
+                 "0 = not late)"),
     ]
 
 

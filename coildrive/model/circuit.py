@@ -24,6 +24,21 @@ clamp         ``R_sense`` if in the coil path           ``V_clamp - V_bus``
 
 The switch sees ``V_bus + V_diode + V_zener + R_fw i`` while freewheeling through a path
 across the coil, and ``V_clamp`` with a clamp across it.
+
+Split decay (``freewheel.split_decay``): during the hold a bypass switch (on-resistance
+``R_bp``) shorts the fast element, so the PWM off-times take the slow path
+
+============  =======================================  ==============================
+type          ``R_off`` of the hold (beyond ``R_coil``)  ``V_off`` of the hold
+============  =======================================  ==============================
+zener         ``R_sense`` if in the coil path + ``R_bp``  ``V_diode`` (Zener bypassed)
+resistor      ``R_sense`` if in the coil path + ``R_bp``  ``V_diode`` (resistor bypassed)
+clamp         ``R_sense`` if in the coil path + ``R_bp``  ``V_diode`` (a diode + bypass
+                                                        switch across the coil)
+============  =======================================  ==============================
+
+and the switch sees ``V_bus + V_diode + R_bp i``; the release (bypass open) takes the
+fast path of the table above. :func:`loop` gives either with ``path``.
 """
 
 from __future__ import annotations
@@ -55,6 +70,8 @@ class Loop:
     """Loop parameters at a set of operating points (arrays broadcast together).
 
     Units: V, ohm, H. ``r_coil`` is the copper alone (it is what heats the coil).
+    ``bypassed`` is True for the slow path of a split-decay hold (the bypass switch
+    shorts the fast element; see the module docstring).
     """
 
     v_on: np.ndarray
@@ -64,20 +81,31 @@ class Loop:
     inductance: np.ndarray
     r_coil: np.ndarray
     supply: np.ndarray
+    bypassed: bool = False
 
     def switch_voltage(self, drive: Drive, current):
         """Switch (drain) voltage in V right after turning off ``current`` A."""
         fw = drive.freewheel
+        if self.bypassed:
+            return self.supply + fw.diode_drop + fw.bypass_resistance * np.asarray(current)
         if fw.type == "clamp":
             return np.broadcast_to(np.asarray(fw.clamp_voltage, float), np.shape(current)) + 0.0
         return self.supply + fw.diode_drop + fw.zener_voltage + fw.resistance * np.asarray(current)
 
 
-def loop(drive: Drive, supply, coil_temp, r_factor=1.0, l_factor=1.0) -> Loop:
+def split_decay(drive: Drive) -> bool:
+    """True when the hold and the release take different freewheel paths (split decay
+    with a fast element to bypass)."""
+    return drive.freewheel.split_decay and drive.freewheel.type != "diode"
+
+
+def loop(drive: Drive, supply, coil_temp, r_factor=1.0, l_factor=1.0, path: str = "hold") -> Loop:
     """Loop parameters for supply V, coil temperature degC and tolerance factors.
 
     ``r_factor``/``l_factor`` multiply the nominal coil resistance/inductance
-    (1.07 = +7 % tolerance corner). ``inductance`` is ``coil.inductance``, or with an
+    (1.07 = +7 % tolerance corner). ``path`` picks the freewheel path: ``"hold"`` the
+    one the PWM off-times take, ``"release"`` the one of the final turn-off; they differ
+    only with split decay (:func:`split_decay`). ``inductance`` is ``coil.inductance``, or with an
     ``[armature]`` its seated value ``inductance_closed`` (the armature model itself
     uses the inductance at every gap, see :mod:`coildrive.model.armature`).
     """
@@ -87,11 +115,19 @@ def loop(drive: Drive, supply, coil_temp, r_factor=1.0, l_factor=1.0) -> Loop:
     supply = np.asarray(supply, float)
     r_coil = copper_resistance(coil.resistance, coil.reference_temp, coil_temp) * r_factor
     r_on = r_coil + drive.switch.on_resistance + sense.resistance
-    r_off = r_coil + (sense.resistance if sense.position == "coil" else 0.0) + fw.resistance
-    if fw.type == "clamp":
-        v_off = fw.clamp_voltage - supply
+    if path not in ("hold", "release"):
+        raise ValueError(f"path {path!r}: expected 'hold' or 'release'")
+    bypassed = path == "hold" and split_decay(drive)
+    r_sense_off = sense.resistance if sense.position == "coil" else 0.0
+    if bypassed:
+        r_off = r_coil + r_sense_off + fw.bypass_resistance
+        v_off = np.full_like(supply, fw.diode_drop)
     else:
-        v_off = np.full_like(supply, fw.diode_drop + fw.zener_voltage)
+        r_off = r_coil + r_sense_off + fw.resistance
+        if fw.type == "clamp":
+            v_off = fw.clamp_voltage - supply
+        else:
+            v_off = np.full_like(supply, fw.diode_drop + fw.zener_voltage)
     # With a moving armature the switched segments that use Loop.inductance (the PWM hold,
     # the release until the armature lets go) all have it seated: the closed inductance.
     base = coil.inductance if drive.armature is None else drive.armature.inductance_closed
@@ -100,7 +136,7 @@ def loop(drive: Drive, supply, coil_temp, r_factor=1.0, l_factor=1.0) -> Loop:
     # read-only broadcast views: no copies of scalars spread over many points
     supply, r_on, r_off, v_off, inductance, r_coil = arrays
     return Loop(v_on=supply, r_on=r_on, r_off=r_off, v_off=v_off, inductance=inductance,
-                r_coil=r_coil, supply=supply)
+                r_coil=r_coil, supply=supply, bypassed=bypassed)
 
 
 def freewheel_element_energy(drive: Drive, lp: Loop, charge, square):
@@ -108,9 +144,12 @@ def freewheel_element_energy(drive: Drive, lp: Loop, charge, square):
 
     ``charge`` and ``square`` are ``int i dt`` and ``int i^2 dt`` over the segment.
     Diode, Zener and resistor for paths across the coil; the clamp's ``V_clamp * Q``
-    (part of which the supply delivers during the decay) for a clamp across the switch.
+    (part of which the supply delivers during the decay) for a clamp across the switch;
+    diode and bypass switch for the slow path of split decay (``lp.bypassed``).
     """
     fw = drive.freewheel
+    if lp.bypassed:
+        return fw.diode_drop * np.asarray(charge) + fw.bypass_resistance * np.asarray(square)
     if fw.type == "clamp":
         return fw.clamp_voltage * np.asarray(charge)
     return (fw.diode_drop + fw.zener_voltage) * np.asarray(charge) + fw.resistance * np.asarray(square)

@@ -17,6 +17,8 @@ freewheel diode        ``V_diode Q_off / T``
 Zener                  ``V_zener Q_off / T``
 freewheel resistor     ``R_fw S_off / T``
 clamp                  ``V_clamp Q_off / T``
+bypass switch          ``R_bp S_off / T`` (split decay: the hold's slow path is the
+                       diode and the bypass switch, the fast element takes nothing)
 =====================  ==========================================================
 
 (``Q`` = integral of ``i``, ``S`` = integral of ``i^2``.) In steady state the inductor's
@@ -42,7 +44,8 @@ class HoldLosses:
     """Average powers in W during the hold, arrays over operating points.
 
     ``freewheel`` is the sum of the freewheel elements (diode + Zener + resistor, or the
-    clamp); ``switch`` is conduction plus the switching estimate.
+    clamp; diode + bypass switch for the slow path of split decay); ``switch`` is
+    conduction plus the switching estimate.
     """
 
     supply: np.ndarray
@@ -54,10 +57,18 @@ class HoldLosses:
     zener: np.ndarray
     resistor: np.ndarray
     clamp: np.ndarray
+    bypass: np.ndarray | float = 0.0
+
+    #: The freewheel elements, in the order reports list them.
+    ELEMENTS = ("diode", "zener", "resistor", "clamp", "bypass")
 
     @property
     def freewheel(self) -> np.ndarray:
-        return self.diode + self.zener + self.resistor + self.clamp
+        return self.diode + self.zener + self.resistor + self.clamp + self.bypass
+
+    def elements(self) -> dict[str, np.ndarray]:
+        """The freewheel elements' powers by name (see :attr:`ELEMENTS`)."""
+        return {name: np.asarray(getattr(self, name)) for name in self.ELEMENTS}
 
     @property
     def switch(self) -> np.ndarray:
@@ -74,10 +85,11 @@ def hold_losses(drive: Drive, lp: Loop, ss: PwmSteadyState, frequency,
                 resistance: float | None = None) -> HoldLosses:
     """Average powers of every element during the hold steady state ``ss`` (W).
 
-    ``lp`` must be the loop the steady state was computed with. ``diode_drop``,
-    ``zener_voltage`` and ``resistance`` override the freewheel path's element values
-    (a split-decay design holds through its slow path). ``rise_time``/``fall_time`` (s)
-    are the switch's voltage transition times for the switching estimate.
+    ``lp`` must be the loop the steady state was computed with; with ``lp.bypassed``
+    (the slow hold path of split decay) the off-times go through the diode and the
+    bypass switch. ``diode_drop``, ``zener_voltage`` and ``resistance`` override the
+    freewheel path's element values. ``rise_time``/``fall_time`` (s) are the switch's
+    voltage transition times for the switching estimate.
     """
     fw = drive.freewheel
     sense = drive.board.sense
@@ -85,7 +97,8 @@ def hold_losses(drive: Drive, lp: Loop, ss: PwmSteadyState, frequency,
     q_on, s_on = ss.charge_on * f, ss.square_on * f      # A, A^2 averaged over a period
     q_off, s_off = ss.charge_off * f, ss.square_off * f
     zero = np.zeros_like(q_on)
-    clamp = fw.type == "clamp" and diode_drop is None
+    bypassed = bool(getattr(lp, "bypassed", False))
+    clamp = fw.type == "clamp" and diode_drop is None and not bypassed
     supply = lp.supply * (q_on + (q_off if clamp else 0.0))
     coil = lp.r_coil * (s_on + s_off)
     r_sense = sense.resistance
@@ -94,7 +107,13 @@ def hold_losses(drive: Drive, lp: Loop, ss: PwmSteadyState, frequency,
     vd = fw.diode_drop if diode_drop is None else diode_drop
     vz = fw.zener_voltage if zener_voltage is None else zener_voltage
     rf = fw.resistance if resistance is None else resistance
-    if clamp:
+    bypass_p = zero
+    if bypassed:
+        r_bp = fw.bypass_resistance
+        diode_p, zener_p, res_p, clamp_p = vd * q_off, zero, zero, zero
+        bypass_p = r_bp * s_off
+        v_turn_off = lp.supply + vd + r_bp * ss.i_max
+    elif clamp:
         diode_p, zener_p, res_p = zero, zero, zero
         clamp_p = fw.clamp_voltage * q_off
         v_turn_off = np.full_like(q_on, fw.clamp_voltage)
@@ -110,4 +129,4 @@ def hold_losses(drive: Drive, lp: Loop, ss: PwmSteadyState, frequency,
     switching = e_edges * f
     return HoldLosses(supply=supply, coil=coil, sense=sense_p, switch_conduction=cond,
                       switch_switching=switching, diode=diode_p, zener=zener_p,
-                      resistor=res_p, clamp=clamp_p)
+                      resistor=res_p, clamp=clamp_p, bypass=bypass_p)

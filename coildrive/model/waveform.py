@@ -4,6 +4,12 @@ Built from the closed-form segments (no time stepping): every switch edge is a s
 and each segment gets ``points`` samples in between, so the series resolves every PWM
 edge exactly. The hold ends after the on-time of its last period, so the release starts
 from the top of the ripple (the slowest release).
+
+With split decay the hold's off-times take the slow path and the release the fast one;
+the bypass opens ``freewheel.bypass_lead`` s before the final turn-off (a sample sits
+there; a lead longer than the on-time -- a failing design check -- is drawn opening at
+the start of the last on-time), or after it for a negative lead, in which case the
+release decays slowly until the bypass opens.
 """
 
 from __future__ import annotations
@@ -15,7 +21,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..config import Drive
-from .circuit import loop
+from .circuit import loop, split_decay
 from .rl import decay_current, decay_time, rise_current
 
 
@@ -29,7 +35,9 @@ class Waveform:
     moving armature also ``move``, ``impact`` (the current dip), ``seat``, ``unlatch``
     and ``open`` (see :mod:`coildrive.model.armature_sim`), and ``dip_current`` in A.
     ``position`` (gap, m: stroke when open, 0 seated) and ``velocity`` (m/s) are
-    ``None`` without an armature.
+    ``None`` without an armature. ``bypass_on`` (0/1, split decay only, else ``None``)
+    is the bypass switch: 1 while it shorts the fast-decay element; ``events`` then has
+    ``bypass_open``.
     """
 
     time: np.ndarray
@@ -41,14 +49,19 @@ class Waveform:
     label: str = ""
     position: np.ndarray | None = None
     velocity: np.ndarray | None = None
+    bypass_on: np.ndarray | None = None
 
     def to_csv(self) -> str:
         """CSV text with header ``time_s,current_a,switch_on,switch_voltage_v,sense_current_a``
-        (then ``position_m,velocity_m_s`` with an armature)."""
+        (then ``bypass_on`` with split decay, ``position_m,velocity_m_s`` with an armature)."""
         buf = io.StringIO()
         cols = [self.time, self.current, self.switch_on, self.switch_voltage, self.sense_current]
         head = "time_s,current_a,switch_on,switch_voltage_v,sense_current_a"
         fmt = ["%.9e", "%.9e", "%d", "%.6e", "%.9e"]
+        if self.bypass_on is not None:
+            cols.append(self.bypass_on)
+            head += ",bypass_on"
+            fmt.append("%d")
         if self.position is not None:
             cols += [self.position, self.velocity]
             head += ",position_m,velocity_m_s"
@@ -75,6 +88,9 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
                                   hold_time, r_factor, l_factor, points, label)
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
     v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
+    if split_decay(drive):
+        return _split_actuation(drive, lp, supply, coil_temp, peak_time, duty, frequency,
+                                hold_time, r_factor, l_factor, points, label)
     big = 40 * points
     ts, cs, ons = [], [], []
 
@@ -105,6 +121,60 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
     v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
     events = {"on": 0.0, "hold": peak_time, "off": t_offedge, "zero": t_offedge + tz}
     return Waveform(time, current, on, v_sw, sense, events, label)
+
+
+def _split_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_time: float,
+                     duty: float, frequency: float, hold_time: float, r_factor: float,
+                     l_factor: float, points: int, label: str) -> Waveform:
+    """:func:`actuation` with split decay: hold through the slow loop ``lp``, release
+    through the fast one, the bypass opening as ``freewheel.bypass_lead`` says."""
+    fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
+    v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
+    f_off, f_v = float(fast.r_off), float(fast.v_off)
+    big = 40 * points
+    tp = np.linspace(0.0, peak_time, big + 1)
+    ip = rise_current(tp, 0.0, v, r_on, ind)
+    t_hold, i_hold, on_hold, t_cut, i_cut, starts = hold_samples(
+        peak_time, float(ip[-1]), v, r_on, r_off, v_off, ind, duty, frequency, hold_time, points)
+    period = 1.0 / frequency
+    t_last = t_cut - duty * period  # start of the last on-time
+    lead = drive.freewheel.bypass_lead
+    ts, cs, ons = [tp, t_hold], [ip, i_hold], [np.ones_like(tp), on_hold]
+    if lead >= 0:
+        t_open = max(t_cut - lead, t_last)
+        if t_open < t_cut and not np.any(t_hold == t_open):
+            # a sample where the bypass opens, inside the last on-time
+            ts.append(np.array([t_open]))
+            cs.append(rise_current(np.array([t_open - t_last]), starts[-1], v, r_on, ind))
+            ons.append(np.ones(1))
+        t_fast, i_fast = t_cut, i_cut
+    else:
+        # late bypass: slow decay until it opens (or the current is zero)
+        t_open = t_cut - lead
+        lag = min(-lead, float(decay_time(0.0, i_cut, r_off, v_off, ind)))
+        td = np.linspace(0.0, lag, big + 1)[1:]
+        ts.append(t_cut + td)
+        cs.append(decay_current(td, i_cut, r_off, v_off, ind))
+        ons.append(np.zeros_like(td))
+        t_fast, i_fast = t_cut + lag, float(cs[-1][-1]) if td.size else i_cut
+    tz = float(decay_time(0.0, i_fast, f_off, f_v, ind)) if i_fast > 0 else 0.0
+    if tz > 0:
+        td = np.linspace(0.0, tz, big + 1)[1:]
+        ts.append(t_fast + td)
+        cs.append(decay_current(td, i_fast, f_off, f_v, ind))
+        ons.append(np.zeros_like(td))
+    time = np.concatenate(ts)
+    order = np.argsort(time, kind="stable")
+    time = time[order]
+    current = np.concatenate(cs)[order]
+    on = np.concatenate(ons)[order].astype(np.int8)
+    bypass = (time < t_open).astype(np.int8)
+    slow_v, sense = _switch_and_sense(drive, lp, supply, current, on)
+    fast_v, _ = _switch_and_sense(drive, fast, supply, current, on)
+    v_sw = np.where(bypass == 1, slow_v, fast_v)
+    zero = t_fast + tz
+    events = {"on": 0.0, "hold": peak_time, "off": t_cut, "zero": zero, "bypass_open": t_open}
+    return Waveform(time, current, on, v_sw, sense, events, label, bypass_on=bypass)
 
 
 def _switch_and_sense(drive: Drive, lp, supply: float, current, on):

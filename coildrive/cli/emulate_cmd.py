@@ -1,0 +1,94 @@
+"""``coildrive emulate``: a virtual bench device on a pseudo-terminal.
+
+stdout: the device path, first line, flushed at once (nothing else). stderr: one line per
+switch change (``state on`` / ``state off``) and per command
+(``command <OPCODE> <argument> -> <status>``), then ``stopped``.
+"""
+
+from __future__ import annotations
+
+import signal
+from pathlib import Path
+from typing import Optional
+
+import typer
+
+from ..config import load_drive
+from ..errors import InputError
+from ..units import parse_quantity
+from .common import status, user_errors
+
+_FAULTS = {"open": "open", "shorted-turns": "shorted_turns", "stuck": "stuck"}
+_OPTION = {"supply": "--supply", "coil_temp": "--coil-temp", "period": "--period",
+           "hold_time": "--hold-time", "resistance_scale": "--resistance-scale",
+           "inductance_scale": "--inductance-scale", "fault": "--fault", "noise_codes": "--noise",
+           "drop_bytes": "--drop-bytes", "corrupt_bytes": "--corrupt-bytes", "baud": "--baud"}
+
+
+def _quantity(text: Optional[str], dimension: str, option: str) -> float | None:
+    return None if text is None else parse_quantity(text, dimension, option)
+
+
+@user_errors
+def emulate_command(
+    drive: Path = typer.Argument(..., help="Drive file (TOML)."),
+    board: Optional[str] = typer.Option(None, "--board", "-b", help="Bundled board name or board file; overrides the drive file's board."),
+    supply: Optional[str] = typer.Option(None, "--supply", help='Bus voltage of the virtual bench, e.g. 20 or "20 V" (default: the nominal supply).'),
+    coil_temp: Optional[str] = typer.Option(None, "--coil-temp", help='Coil temperature, e.g. 85 or "85 degC" (default: reference temperature within the ambient range).'),
+    period: Optional[str] = typer.Option(None, "--period", help='Time between automatic actuations, e.g. "0.5 s" (default: long enough to stream one, at least 0.2 s).'),
+    hold_time: str = typer.Option("20 ms", "--hold-time", help="Hold of the automatic actuations."),
+    resistance_scale: float = typer.Option(1.0, "--resistance-scale", help="Real coil resistance / the drive file's (1.4 = +40 %)."),
+    inductance_scale: float = typer.Option(1.0, "--inductance-scale", help="Real coil inductance / the drive file's."),
+    fault: Optional[str] = typer.Option(None, "--fault", help="Put in a fault: open, shorted-turns or stuck."),
+    noise: float = typer.Option(0.0, "--noise", help="ADC noise, codes (one sigma)."),
+    drop_bytes: float = typer.Option(0.0, "--drop-bytes", help="Probability that a byte on the line is lost."),
+    corrupt_bytes: float = typer.Option(0.0, "--corrupt-bytes", help="Probability that a byte on the line is changed."),
+    seed: int = typer.Option(0, "--seed", help="Seed of the noise and the line damage."),
+    duration: Optional[str] = typer.Option(None, "--duration", help='Stop after this long, e.g. "10 s" (default: until SIGINT/SIGTERM).'),
+    baud: Optional[int] = typer.Option(None, "--baud", help="Line rate in baud (default: the board file's link baud)."),
+) -> None:
+    """Serve a virtual bench device for DRIVE on a pseudo-terminal; print its path first."""
+    from ..bench.device import DeviceOptions, OptionError, VirtualDevice
+    from ..bench.emulator import Emulator
+    from ..design import design
+
+    if fault is not None and fault not in _FAULTS:
+        raise InputError("--fault", "", f"{fault!r} is not one of {', '.join(_FAULTS)}")
+    for option, value in (("--noise", noise), ("--resistance-scale", resistance_scale),
+                          ("--inductance-scale", inductance_scale)):
+        if value != value:   # NaN
+            raise InputError(option, "", "is not a number")
+    stop_after = _quantity(duration, "time", "--duration")
+    if stop_after is not None and not stop_after > 0:
+        raise InputError("--duration", "", f"{duration!r} must be greater than zero")
+    try:
+        options = DeviceOptions(
+            supply=_quantity(supply, "voltage", "--supply"),
+            coil_temp=_quantity(coil_temp, "temperature", "--coil-temp"),
+            period=_quantity(period, "time", "--period"),
+            hold_time=parse_quantity(hold_time, "time", "--hold-time"),
+            resistance_scale=resistance_scale, inductance_scale=inductance_scale,
+            fault=_FAULTS.get(fault) if fault else None, noise_codes=noise, drop_bytes=drop_bytes,
+            corrupt_bytes=corrupt_bytes, seed=seed, baud=baud)
+    except OptionError as err:
+        raise InputError(_OPTION.get(err.name, err.name), "", err.message) from None
+    d = design(load_drive(drive, board))
+    try:
+        device = VirtualDevice(d.drive, options, design=d)
+    except ValueError as err:
+        key = "hold.mode" if "voltage-mode" in str(err) else "pull_in.current"
+        raise InputError(str(drive), key, str(err)) from None
+
+    with Emulator(device) as emulator:
+        def request_stop(signum, frame):
+            emulator.stop_requested.set()
+        old = {sig: signal.signal(sig, request_stop) for sig in (signal.SIGINT, signal.SIGTERM)}
+        try:
+            typer.echo(emulator.path)   # click.echo flushes: the host may open it now
+            emulator.serve(stop_after, lambda entry: status(entry.text))
+        finally:
+            for sig, handler in old.items():
+                signal.signal(sig, handler)
+        if emulator.unread_dropped:
+            status(f"note: {emulator.unread_dropped} bytes dropped while nobody read the device")
+    status("stopped")
