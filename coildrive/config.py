@@ -809,14 +809,6 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
         fw_board = {k: v for k, v in fw_board.items() if k == "type" or v}
     merged, origins = _merged(brd.source, fw_board, source, fw_drive)
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
-    if freewheel.split_decay and armature is not None:
-        raise InputError(origins.get("split_decay", source), "freewheel.split_decay",
-                         "is not supported with [armature] yet (the moving-armature model uses "
-                         "one freewheel path): leave split_decay out or the [armature] section")
-    if freewheel.split_decay and hold.mode == "current":
-        raise InputError(origins.get("split_decay", source), "freewheel.split_decay",
-                         "is not supported with hold.mode = \"current\" yet: use the "
-                         "voltage-mode hold with split decay")
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:
         raise InputError(origins.get("clamp_voltage", source), "freewheel.clamp_voltage",
                          f"{freewheel.clamp_voltage:g} V is not above supply.max ({supply.max:g} V): "

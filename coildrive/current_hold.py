@@ -21,6 +21,11 @@ to it), then replaces everything the hold decides with the current-mode model of
   ``hold.max_frequency`` at every corner, the threshold is reachable at every corner,
   the sense position suits the control (hysteretic needs the coil path), the codes fit
   the ADC, the off time fits the timer.
+* hold losses (each freewheel element and the switch, from the exact switching cycle by
+  the element formulas of :mod:`coildrive.model.losses`), their rating checks and
+  cautions, and what split decay would save; with split decay
+  (``freewheel.split_decay``) the off segments take the slow path (the thresholds and
+  the switching frequency follow it) and the release the fast one.
 
 In the design JSON ``hold.frequency_hz`` is the switching frequency at the nominal
 point, ``hold.duty`` the largest switch-on fraction over the corners (1 where the
@@ -39,11 +44,12 @@ import numpy as np
 from .config import Drive
 from .corners import CornerGrid, corner_grid, nominal_point
 from .errors import InputError
-from .evaluate import PointResults
-from .model.circuit import freewheel_element_energy, loop
+from .evaluate import PointResults, release_figures
+from .model.circuit import loop, split_decay
 from .model.current_mode import (CurrentModeSteadyState, hysteretic_steady_state,
                                  off_time_steady_state)
-from .model.rl import decay_current, decay_integrals, decay_time, rise_current, rise_time
+from .model.losses import HoldLosses, element_powers
+from .model.rl import decay_current, decay_time, rise_current, rise_time
 from .model.thermal import settle_temperature
 from .timer import solve_timer
 
@@ -264,7 +270,8 @@ def evaluate_current(drive: Drive, th: Thresholds, supply, ambient, r_factor, l_
                      peak_time) -> tuple[PointResults, CurrentModeSteadyState]:
     """Every design figure at the points with the current-mode hold ``th`` (the
     counterpart of :func:`coildrive.evaluate.evaluate`; the release starts from the
-    top of the ripple)."""
+    top of the ripple). With split decay the hold (thresholds, switching, heat) takes
+    the slow path and the release the fast one, as in voltage mode."""
     supply, ambient, r_factor, l_factor = np.broadcast_arrays(
         *(np.asarray(x, float) for x in (supply, ambient, r_factor, l_factor)))
     lower = th.lower_a if th.control == "hysteretic" else 0.0
@@ -275,17 +282,73 @@ def evaluate_current(drive: Drive, th: Thresholds, supply, ambient, r_factor, l_
     i_peak = rise_current(peak_time, 0.0, lp.v_on, lp.r_on, lp.inductance)
     power = ss.rms**2 * lp.r_coil
     i_off = ss.i_max
-    t_drop = decay_time(drive.release.current, i_off, lp.r_off, lp.v_off, lp.inductance)
-    t_zero = decay_time(0.0, i_off, lp.r_off, lp.v_off, lp.inductance)
-    q, s = decay_integrals(t_zero, i_off, lp.r_off, lp.v_off, lp.inductance)
-    energy = freewheel_element_energy(drive, lp, q, s)
+    if split_decay(drive):
+        finite = np.where(np.isfinite(temp), temp, drive.thermal.max_coil_temp)
+        lp_rel = loop(drive, supply, finite, r_factor, l_factor, path="release")
+    else:
+        lp_rel = lp
+    t_drop, t_zero, energy, i_fast = release_figures(drive, lp, lp_rel, i_off)
     interrupt = np.maximum(i_peak, ss.i_max)
+    # the end of the peak and every hold off-time turn off into the hold's path, the
+    # release into the release path (the same one without split decay)
+    v_sw = lp.switch_voltage(drive, interrupt)
+    if lp_rel is not lp:
+        v_sw = np.maximum(v_sw, lp_rel.switch_voltage(drive, i_fast))
     res = PointResults(supply=supply, ambient=ambient, coil_temp=temp, r_factor=r_factor,
                        l_factor=l_factor, loop=lp, pull_in_time=t_pull, peak_end_current=i_peak,
                        hold=ss, coil_power=power, release_time=t_drop, release_zero_time=t_zero,
                        release_energy=energy, interrupt_current=interrupt,
-                       peak_switch_voltage=lp.switch_voltage(drive, interrupt))
+                       peak_switch_voltage=v_sw, release_loop=lp_rel)
     return res, cm
+
+
+def current_losses(drive: Drive, res: PointResults, cm: CurrentModeSteadyState) -> HoldLosses:
+    """Element powers (W) of the current-mode hold at the points of ``res``: the same
+    element formulas as the PWM hold (:func:`coildrive.model.losses.element_powers`)
+    over the exact switching cycle, ``1 / T`` periods per second (where the threshold is
+    out of reach the switch stays on: DC, no switching loss)."""
+    sw = drive.switch
+    return element_powers(drive, res.loop, cm.charge_on, cm.square_on, cm.charge_off,
+                          cm.square_off, 1.0 / cm.period, cm.i_min, cm.i_max, cm.dcm,
+                          cm.frequency, sw.rise_time, sw.fall_time)
+
+
+def _split_saving(drive: Drive, grid: CornerGrid, res: PointResults, cm: CurrentModeSteadyState,
+                  loss: HoldLosses, fallback, peak_time: float) -> dict | None:
+    """What split decay would save in a current-mode hold on a fast-decay path: the same
+    drive with the slow hold path, its thresholds chosen again (so the switching
+    frequency changes too). ``None`` with a diode path or with split decay fitted."""
+    from . import design as dz
+
+    if drive.freewheel.type == "diode" or split_decay(drive):
+        return None
+    slow, assumed = dz._slow_hold_drive(drive)
+    th = choose_thresholds(slow, grid)
+    rs, cms = evaluate_current(slow, th, grid.supply, grid.ambient, grid.r_factor, grid.l_factor,
+                               peak_time)
+    ls = current_losses(slow, rs, cms)
+    fb = fallback.hold.split_decay_saving or {}
+    out = dz._saving_figures(drive, res, loss, float(np.max(cm.duty)), rs, ls,
+                             float(np.max(cms.duty)), fb.get("compare_ticks_split"), assumed)
+    reg = cms.regulated
+    f = cms.frequency[reg] if np.any(reg) else np.zeros(1)
+    out.update(min_frequency_split_hz=float(np.min(f)), max_frequency_split_hz=float(np.max(f)),
+               lower_code_split=th.lower_code if th.control == "hysteretic" else None,
+               upper_code_split=th.upper_code,
+               off_time_split_s=None if th.control == "hysteretic" else th.off_time_s)
+    return out
+
+
+def _split_result(drive: Drive, fallback, cm: CurrentModeSteadyState):
+    """The split-decay timing of a current-mode hold: the fixed-duty fallback's lead and
+    lag counts, and as the on-time the shortest switch-on time over the corners (in the
+    same PWM-timer counts, rounded down), within which a leading bypass must open."""
+    s = fallback.split_decay
+    if s is None:
+        return None
+    reg = cm.regulated
+    shortest = float(np.min(cm.t_on[reg])) if np.any(reg) else 0.0
+    return dataclasses.replace(s, on_time_counts=math.floor(shortest * s.count_rate_hz + 1e-9))
 
 
 # --------------------------------------------------------------------------- design
@@ -315,8 +378,11 @@ def design_current_mode(drive: Drive, samples: int = 0, seed: int = 1):
     nom_grid = nominal_point(drive)
     nom, nom_cm = evaluate_current(drive, th, nom_grid.supply, nom_grid.ambient, nom_grid.r_factor,
                                    nom_grid.l_factor, peak_time)
-    corners = dz._corners(grid, res)
-    nominal = dz._corners(nom_grid, nom)[0]
+    # Hold powers at every corner from the exact switching cycle (coil at its settled
+    # temperature there), as for the PWM hold.
+    loss = current_losses(drive, res, cm)
+    corners = dz._corners(grid, res, loss)
+    nominal = dz._corners(nom_grid, nom, current_losses(drive, nom, nom_cm))[0]
     nominal = dz.Corner(**{**asdict(nominal), "label": "nominal: " + nominal.label})
 
     k_min = dz._worst(res.hold.mean, largest=False)
@@ -329,7 +395,9 @@ def design_current_mode(drive: Drive, samples: int = 0, seed: int = 1):
         max_mean_current_a=float(res.hold.mean[k_max]), max_corner=grid.label(k_max),
         ripple_a=float(np.max(res.hold.ripple)), current_step_a=th.lsb_a,
         coil_power_w=float(np.max(res.coil_power)), coil_temp_c=float(res.coil_temp[k_hot]),
-        hottest_corner=grid.label(k_hot), discontinuous_corners=int(np.sum(res.hold.dcm)))
+        hottest_corner=grid.label(k_hot), discontinuous_corners=int(np.sum(res.hold.dcm)),
+        **dz._loss_figures(drive, grid, loss),
+        split_decay_saving=_split_saving(drive, grid, res, cm, loss, fallback, peak_time))
 
     k_rel = dz._worst(res.release_time)
     rating = drive.switch.max_voltage
@@ -387,18 +455,21 @@ def design_current_mode(drive: Drive, samples: int = 0, seed: int = 1):
     voltage_only = ("timer_frequency", "duty_range", "duty_resolution")
     checks = [c for c in base if c.name not in voltage_only + ("audible_frequency",)]
     checks += _current_checks(drive, th, result, thresholds, res, cm, grid)
+    split = _split_result(drive, fallback, cm) if split_decay(drive) else None
+    checks += dz._loss_checks(drive, hold, loss, grid, split)
     for name in voltage_only:
         if name in old:
             c = old[name]
             checks.append(dataclasses.replace(c, detail="fixed-duty fallback: " + c.detail,
                                               severity="warning"))
-    cautions = dz._cautions(drive, hold, release)
+    cautions = dz._cautions(drive, hold, release) + dz._loss_cautions(drive, hold, release, split)
     waveforms = {
         "nominal": _waveform(drive, th, nom, 0, peak_time, "nominal"),
         "worst": _waveform(drive, th, res, k_pull, peak_time, "worst pull-in: " + grid.label(k_pull)),
     }
     return dataclasses.replace(
         fallback, drive=drive, pull_in=pull_in, hold=hold, release=release, adc=thresholds,
+        split_decay=split,
         corners=corners, nominal=nominal, checks=checks, cautions=cautions, waveforms=waveforms,
         input_hash=drive.input_hash(), worst_corner_index=k_pull,
         extra={**fallback.extra, "current_mode": result, "current_thresholds": th})
@@ -479,8 +550,12 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
                            peak_time: float, hold_time: float, r_factor: float = 1.0,
                            l_factor: float = 1.0, points: int = 8, label: str = ""):
     """One actuation with the current-mode hold (closed-form segments, every switch edge a
-    sample): peak, hold for ``hold_time`` s (ending at a turn-off edge), release."""
-    from .model.waveform import Waveform
+    sample): peak, hold for ``hold_time`` s (ending at a turn-off edge), release.
+
+    With split decay the hold's off segments take the slow path and the release the
+    fast one, the bypass opening as ``freewheel.bypass_lead`` says (within the last
+    on-time, or after the turn-off for a negative lead; a ``bypass_on`` column)."""
+    from .model.waveform import Waveform, split_release, split_waveform
 
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
     v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
@@ -489,8 +564,10 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
     upper, lower, d = th.upper_a, th.lower_a, th.delay_s
     big = 40 * points
     ts, cs, ons = [], [], []
+    last_on = []  # start time and current of the latest on segment
 
     def on_seg(t0, i0, dur):
+        last_on[:] = [t0, i0]
         t = np.linspace(0.0, dur, points + 1)[1:]
         ts.append(t0 + t)
         cs.append(rise_current(t, i0, v, r_on, ind))
@@ -526,6 +603,14 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
     if not regulated:
         t, i = on_seg(t, i, hold_time)
     t_off_edge = t
+    if split_decay(drive):
+        fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
+        t_last, i_last = last_on if last_on else (t_off_edge, i)
+        t_open, zero = split_release(drive, lp, fast, t_off_edge, i, t_last, i_last, ts[-1],
+                                     big, ts, cs, ons)
+        return split_waveform(drive, lp, fast, supply, ts, cs, ons, t_open,
+                              {"on": 0.0, "hold": peak_time, "off": t_off_edge, "zero": zero,
+                               "bypass_open": t_open}, label)
     tz = float(decay_time(0.0, i, r_off, v_off, ind))
     td = np.linspace(0.0, tz, big + 1)[1:]
     ts.append(t_off_edge + td)

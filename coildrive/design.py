@@ -628,33 +628,23 @@ def _loss_figures(drive: Drive, grid: CornerGrid, loss: HoldLosses) -> dict:
     )
 
 
-def _split_saving(drive: Drive, grid: CornerGrid, timer: TimerSetting, res: PointResults,
-                  loss: HoldLosses, duty: float, peak_time: float) -> dict | None:
-    """What split decay would save when the hold takes a fast-decay path without it: the
-    same design (frequency, peak) with the slow hold path, its duty solved again.
-
-    ``None`` with a plain diode path (already slow) or with split decay fitted.
-    """
+def _slow_hold_drive(drive: Drive) -> tuple[Drive, bool]:
+    """The same drive with split decay fitted (an ideal bypass, no lead): the hold takes
+    the slow path. A clamp board with no ``diode_drop`` gets :data:`ASSUMED_DIODE_DROP`;
+    the flag says so."""
     fw = drive.freewheel
-    if fw.type == "diode" or split_decay(drive):
-        return None
     assumed = fw.diode_drop <= 0
     slow_fw = dataclasses.replace(fw, split_decay=True, bypass_resistance=0.0, bypass_lead=0.0,
                                   diode_drop=ASSUMED_DIODE_DROP if assumed else fw.diode_drop)
-    slow = dataclasses.replace(drive, freewheel=slow_fw)
-    f_hold = timer.frequency_hz
-    # The duty iteration climbs to the smallest self-consistent duty from below, so
-    # stopping it early (within a quarter count) gives a duty at or below it; the compare
-    # is then rounded up and raised until every corner holds, which lands on the same
-    # count as the exact duty would (the tests compare with a full split-decay design).
-    d_low, _ = required_duty(slow, grid.supply, grid.ambient, grid.r_factor, grid.l_factor, f_hold,
-                             tol=0.25 / timer.period_ticks)
-    compare = _quantised_compare(slow, grid, d_low, timer)
-    d_slow = compare / timer.period_ticks
-    rs = evaluate(slow, grid.supply, grid.ambient, grid.r_factor, grid.l_factor, d_slow, f_hold,
-                  peak_time, mechanics=False)
-    ls = _losses(slow, rs, f_hold)
-    fast_element = {"zener": "zener", "resistor": "resistor", "clamp": "clamp"}[fw.type]
+    return dataclasses.replace(drive, freewheel=slow_fw), assumed
+
+
+def _saving_figures(drive: Drive, res: PointResults, loss: HoldLosses, duty: float,
+                    rs: PointResults, ls: HoldLosses, d_slow: float, compare: int,
+                    assumed: bool) -> dict:
+    """The ``split_decay_saving`` object from the hold as designed (``res``, ``loss``,
+    ``duty``) and with the slow hold path (``rs``, ``ls``, ``d_slow``, ``compare``)."""
+    fast_element = {"zener": "zener", "resistor": "resistor", "clamp": "clamp"}[drive.freewheel.type]
     return {
         "freewheel_power_w": float(np.max(loss.freewheel) - np.max(ls.freewheel)),
         "fast_element": fast_element,
@@ -668,6 +658,32 @@ def _split_saving(drive: Drive, grid: CornerGrid, timer: TimerSetting, res: Poin
         "ripple_change_a": float(np.max(rs.hold.ripple) - np.max(res.hold.ripple)),
         "assumed_diode_drop_v": ASSUMED_DIODE_DROP if assumed else None,
     }
+
+
+def _split_saving(drive: Drive, grid: CornerGrid, timer: TimerSetting, res: PointResults,
+                  loss: HoldLosses, duty: float, peak_time: float) -> dict | None:
+    """What split decay would save when the hold takes a fast-decay path without it: the
+    same design (frequency, peak) with the slow hold path, its duty solved again.
+
+    ``None`` with a plain diode path (already slow) or with split decay fitted.
+    """
+    fw = drive.freewheel
+    if fw.type == "diode" or split_decay(drive):
+        return None
+    slow, assumed = _slow_hold_drive(drive)
+    f_hold = timer.frequency_hz
+    # The duty iteration climbs to the smallest self-consistent duty from below, so
+    # stopping it early (within a quarter count) gives a duty at or below it; the compare
+    # is then rounded up and raised until every corner holds, which lands on the same
+    # count as the exact duty would (the tests compare with a full split-decay design).
+    d_low, _ = required_duty(slow, grid.supply, grid.ambient, grid.r_factor, grid.l_factor, f_hold,
+                             tol=0.25 / timer.period_ticks)
+    compare = _quantised_compare(slow, grid, d_low, timer)
+    d_slow = compare / timer.period_ticks
+    rs = evaluate(slow, grid.supply, grid.ambient, grid.r_factor, grid.l_factor, d_slow, f_hold,
+                  peak_time, mechanics=False)
+    ls = _losses(slow, rs, f_hold)
+    return _saving_figures(drive, res, loss, duty, rs, ls, d_slow, compare, assumed)
 
 
 def _split_result(drive: Drive, timer: TimerSetting, compare: int) -> SplitDecayResult:

@@ -117,17 +117,26 @@ class ArmatureFigures:
 
 
 def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, frequency,
-                      peak_time, reuse: "ArmatureFigures | None" = None) -> ArmatureFigures:
+                      peak_time, reuse: "ArmatureFigures | None" = None,
+                      lp_rel: Loop | None = None) -> ArmatureFigures:
+    """The armature runs at the points: pull-in and hold on the hold's loop ``lp``, the
+    release on ``lp_rel`` (the fast path of split decay; ``None`` or ``lp``: the same
+    path), with a late bypass decaying through ``lp`` first (:func:`late_release`)."""
     import dataclasses
 
-    from .model.armature import (hold_force_current, params_from_loop, peak_current_closed_form,
-                                 pull_in, release)
+    from .model.armature import (hold_force_current, late_release, params_from_loop,
+                                 peak_current_closed_form, pull_in, release)
     from .model.magnet import stroke_current
 
     shape = np.shape(lp.v_on)
-    flat = Loop(*(np.ravel(getattr(lp, f)) for f in
-                  ("v_on", "r_on", "r_off", "v_off", "inductance", "r_coil", "supply")))
+    fields = ("v_on", "r_on", "r_off", "v_off", "inductance", "r_coil", "supply")
+    flat = Loop(*(np.ravel(getattr(lp, f)) for f in fields))
     p = params_from_loop(drive.armature, flat, np.ravel(np.broadcast_to(l_factor, shape)))
+    p_rel = p
+    if lp_rel is not None and lp_rel is not lp:
+        flat_rel = Loop(*(np.ravel(np.broadcast_to(getattr(lp_rel, f), shape)) for f in fields))
+        p_rel = params_from_loop(drive.armature, flat_rel, np.ravel(np.broadcast_to(l_factor, shape)))
+    lag = max(-drive.freewheel.bypass_lead, 0.0) if p_rel is not p else 0.0
     want = np.ravel(np.broadcast_to(peak_time, shape))
     pin = rel = None
     if reuse is not None and all(np.array_equal(getattr(p, f), getattr(reuse.params, f))
@@ -139,7 +148,8 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, freq
             rel = reuse.release
     if pin is None:
         pin = pull_in(p, peak_time=want)
-        rel = release(p, np.ravel(ss.i_max))
+        rel = (late_release(p, p_rel, np.ravel(ss.i_max), lag) if lag > 0 else
+               release(p_rel, np.ravel(ss.i_max)))
     through, gap = stroke_current(p.l_closed, p.beta, p.stroke, p.preload, p.rate, p.load)
     held, lift = hold_force_current(p, np.ravel(ss.i_min), np.ravel(ss.rms), np.ravel(ss.period))
     return ArmatureFigures(params=p, pull_in=pin, release=rel, start_current=p.start_current,
@@ -165,7 +175,9 @@ def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
     With an ``[armature]`` the pull-in time is the time until the armature rests on the
     seat, the current at the end of the peak follows the moving armature, and the
     release time is the time until it rests on the open stop again (the zero-current
-    time and the freewheel energy follow it too). Points are 1-D arrays.
+    time and the freewheel energy follow it too). With split decay the hold (and the
+    pull-in) use the hold's slow loop and the release the fast one, the armature's
+    release included. Points are 1-D arrays.
     """
     supply, ambient, r_factor, l_factor = np.broadcast_arrays(
         *(np.asarray(x, float) for x in (supply, ambient, r_factor, l_factor)))
@@ -182,7 +194,7 @@ def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
     arm = None
     if drive.armature is not None and mechanics:
         arm = _armature_figures(drive, lp, l_factor, ss, frequency, peak_time,
-                                None if reuse is None else reuse.armature)
+                                None if reuse is None else reuse.armature, lp_rel)
         shape = np.shape(supply)
         t_pull = arm.pull_in.seat_time.reshape(shape)
         i_inf = lp.v_on / lp.r_on
@@ -190,8 +202,17 @@ def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
         i_peak = np.where(np.isfinite(i_peak), i_peak, i_inf)  # not settled: the worst case
         t_drop = arm.release.open_time.reshape(shape)
         t_zero = arm.release.zero_time.reshape(shape)
-        energy = freewheel_element_energy(drive, lp, arm.release.charge.reshape(shape),
-                                          arm.release.square.reshape(shape))
+        rb = arm.release
+        q, s = rb.charge.reshape(shape), rb.square.reshape(shape)
+        if rb.slow_charge is None:
+            # the whole release through the release path (the hold's without split decay)
+            energy = freewheel_element_energy(drive, lp_rel, q, s)
+        else:
+            # a late bypass: through the slow path until it opens, then the fast one
+            q1, s1 = rb.slow_charge.reshape(shape), rb.slow_square.reshape(shape)
+            energy = (freewheel_element_energy(drive, lp, q1, s1)
+                      + freewheel_element_energy(drive, lp_rel, q - q1, s - s1))
+            i_fast = rb.fast_current.reshape(shape)
     interrupt = np.maximum(i_peak, ss.i_max)
     # The end of the peak and every hold off-time turn off into the hold's path; the
     # release into the release path (the same one without split decay).

@@ -76,6 +76,10 @@ def _loss_rows(d: Design) -> list:
     if sv:
         assumed = (f"; assuming a {sv['assumed_diode_drop_v']:g} V freewheel diode"
                    if sv.get("assumed_diode_drop_v") else "")
+        if "min_frequency_split_hz" in sv:  # current mode: the switching frequency changes too
+            assumed = (f"; the current-mode hold would then switch at "
+                       f"{sv['min_frequency_split_hz'] / 1e3:.4g}..{sv['max_frequency_split_hz'] / 1e3:.4g} kHz"
+                       + assumed)
         rows.append((
             "split decay would save", f"{sv['freewheel_power_w']:.3g} W",
             f"the {names[sv['fast_element']]} takes {sv['fast_element_power_w']:.3g} W of the hold; "

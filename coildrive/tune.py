@@ -200,6 +200,8 @@ def _temp_guess(drive: Drive, supply, ambient, r_factor, duty):
     rho = r_factor * (drive.coil.resistance / (1.0 + a * (drive.coil.reference_temp - 20.0)))
     extra_on = drive.switch.on_resistance + drive.board.sense.resistance
     extra_off = (drive.board.sense.resistance if drive.board.sense.position == "coil" else 0.0) + fw.resistance
+    # The fast path's off-voltage even with split decay: only a first guess, which the
+    # exact iteration (on the loop's hold path) refines; a worse guess costs iterations.
     v_off = fw.clamp_voltage - supply if fw.type == "clamp" else fw.diode_drop + fw.zener_voltage
     vd = np.maximum(duty * supply - (1.0 - duty) * v_off, 0.0)
     k = r_th * vd * vd

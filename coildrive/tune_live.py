@@ -1022,8 +1022,11 @@ class LiveTuner:
             raise LiveFailure("link", "samples went missing in three actuations in a row: the link "
                               "loses data (lower the sample rate or raise the baud rate)")
         if not act.judgement.seated:
+            hint = ("" if self.drive.armature is not None else
+                    " (the drive file has no [armature] section: a coildrive emulate device built from it "
+                    "has no moving armature, so there is nothing to drop out)")
             raise LiveFailure("stuck", f"stuck armature: actuation {act.number} (duty {act.duty:.4f}) did not "
-                              f"seat -- {act.judgement.evidence}; the device was stopped")
+                              f"seat -- {act.judgement.evidence}; the device was stopped{hint}")
         return act
 
     # ------------------------------------------------------------------ the search

@@ -214,17 +214,7 @@ def test_bad_rating_exit_2_as_a_process(tmp_path):
                                 "expected a power in W, e.g. \"2 W\""), r.stderr
 
 
-def test_split_decay_with_armature_is_refused(tmp_path):
-    path = _drive_file(tmp_path, "locker-latch-12v", '[freewheel]\nsplit_decay = true\n')
-    r = run_cli("design", str(path))
-    assert r.returncode == 2 and "freewheel.split_decay" in r.stderr and "Traceback" not in r.stderr
-
-
-def test_split_decay_with_current_mode_is_refused(tmp_path):
-    path = _drive_file(tmp_path, "demo-valve", '[freewheel]\nsplit_decay = true\n')
-    path.write_text(path.read_text().replace('frequency = "25 kHz"', 'frequency = "25 kHz"\nmode = "current"'))
-    r = runner.invoke(app, ["design", str(path)])
-    assert r.exit_code == 2 and "freewheel.split_decay" in r.stderr and "current" in r.stderr, r.output
+# Split decay with an [armature] or a current-mode hold: tests/test_split_decay_more.py
 
 
 def test_split_clamp_needs_a_diode_drop(tmp_path):

@@ -11,8 +11,9 @@ The armature is in one of three states:
 * ``free``   -- moving: the ODE of :mod:`coildrive.model.armature`, integrated until it
   hits a stop, the current reaches zero with the switch off, or the segment ends.
 
-Two integrators can drive the ``free`` state: ``"numpy"`` (the batched Dormand-Prince
-integrator of :mod:`coildrive.model.armature`, one point) and any scipy ``solve_ivp``
+Two integrators can drive the ``free`` state: ``"numpy"`` (the Dormand-Prince integrator
+of :mod:`coildrive.model.armature`, for one point its float-by-float form ``fly_point``:
+the batch's numbers without numpy's per-call overhead) and any scipy ``solve_ivp``
 method name (``"RK45"``, ``"DOP853"``, ``"Radau"``, ``"BDF"``, ``"LSODA"``), with terminal
 events for the stops -- the per-point reference the batched model is checked against.
 scipy is imported only when one of its methods is asked for.
@@ -22,13 +23,16 @@ Units: SI (s, A, V*s, m, m/s).
 
 from __future__ import annotations
 
+import dataclasses
 import math
+from bisect import bisect_right
 from dataclasses import dataclass, field
 
 import numpy as np
 
+from . import armature as _armature
 from .armature import (BOUND, MAX_BOUNCES, OPEN, REST_FRACTION, SEAT, ZERO, ArmatureParams,
-                       _hermite, _Rhs, _time_bound, fly, is_stiff)
+                       OnePoint, _hermite, _hermite5, _Rhs, _time_bound, fly, fly_point, is_stiff)
 from .rl import decay_current, decay_integrals, decay_time, rise_current, rise_integrals, rise_time
 
 #: Default scipy tolerances of the reference path (relative; absolute = rtol x scale).
@@ -179,7 +183,39 @@ def _rest_segment(run: _Run, t_end: float, on: bool, points: int, stop) -> None:
             run.mark("move")
 
 
+def _fly_point(run: _Run, t_end: float, on: bool, rtol: float, dense: int):
+    """:func:`_fly_numpy` on Python floats (:func:`~coildrive.model.armature.fly_point`),
+    with the same dense fill: the same samples, without numpy's per-call overhead on
+    1-element arrays (a PWM hold in which the armature lifts flies once per half period)."""
+    pt = run.pt
+    c = pt.__dict__.get("_one")
+    if c is None:
+        c = pt._one = OnePoint(pt.p, pt.scales)  # constants of the point, once per run
+    t1, y1, code, _, _, (kt, ky, kd) = fly_point(c, run.t, run.y.tolist(), t_end, on, run.live,
+                                                 rtol, record=True, stiff=pt.stiff)
+    ts, ys = kt[1:], ky[1:]
+    if dense > 1 and ts:
+        # fill in between the steps with the cubic Hermite interpolant of the state
+        have = set(ts)
+        grid = [g for g in np.linspace(run.t, ts[-1], dense + 1)[1:-1].tolist() if g not in have]
+        last = len(kt) - 2
+        fill = []
+        for g in grid:
+            j = min(max(bisect_right(kt, g) - 1, 0), last)
+            h = kt[j + 1] - kt[j]
+            theta = (g - kt[j]) / h if h > 0 else 0.0
+            fill.append(_hermite5(ky[j], ky[j + 1], kd[j], kd[j + 1], h, theta))
+        if fill:
+            # in time order, a step before a grid time equal to it (as the stable argsort)
+            both = sorted(zip(ts + grid, ys + fill), key=lambda e: e[0])
+            ts, ys = [e[0] for e in both], [e[1] for e in both]
+    ys_a = np.array(ys, float).T if ys else np.zeros((5, 0))
+    return np.array(ts, float), ys_a, code, t1, np.array(y1, float)
+
+
 def _fly_numpy(run: _Run, t_end: float, on: bool, rtol: float, dense: int):
+    if _armature.SINGLE_POINT_SCALAR:
+        return _fly_point(run, t_end, on, rtol, dense)
     pt = run.pt
     fl = fly(pt.p, np.array([run.t]), run.y[:, None], np.array([t_end]), np.array([True]),
              np.array([on]), np.array([run.live]), rtol, record=True, stiff=pt.stiff)
@@ -315,9 +351,15 @@ def _free_segment(run: _Run, t_end: float, on: bool, method: str, rtol: float, d
 
 def simulate(p: ArmatureParams, schedule, state: str = "open", flux: float = 0.0,
              method: str = "numpy", rtol: float | None = None, points: int = 40, stop=None,
-             t0: float = 0.0) -> Trajectory:
-    """Simulate one point through ``schedule``: segments ``(t_end, switch_on)`` or
-    ``(t_end, switch_on, samples)``, in time order.
+             t0: float = 0.0, release_params: ArmatureParams | None = None) -> Trajectory:
+    """Simulate one point through ``schedule``: segments ``(t_end, switch_on)``,
+    ``(t_end, switch_on, samples)`` or ``(t_end, switch_on, samples, path)``, in time
+    order.
+
+    ``path`` names the freewheel path of the segment's off time: ``"hold"`` (the
+    default: ``p``'s ``r_off``/``v_off``) or ``"release"`` (those of
+    ``release_params``, which must then be given: the fast path of split decay; its
+    other parameters are those of ``p``). ``samples`` may be ``None`` for ``points``.
 
     Parameters
     ----------
@@ -330,6 +372,10 @@ def simulate(p: ArmatureParams, schedule, state: str = "open", flux: float = 0.0
     stop : ``stop(run) -> bool``, checked after every transition, ends the run early
     """
     pt = _Point(p)
+    paths = {"hold": pt}
+    if release_params is not None:
+        paths["release"] = _Point(dataclasses.replace(p, r_off=release_params.r_off,
+                                                      v_off=release_params.v_off))
     if rtol is None:
         rtol = 1e-8 if method == "numpy" else REFERENCE_RTOL
     if state not in ("open", "seated"):
@@ -343,7 +389,13 @@ def simulate(p: ArmatureParams, schedule, state: str = "open", flux: float = 0.0
     limit = 10 * MAX_BOUNCES + 4 * len(schedule) + 100
     for seg in schedule:
         t_end, on = float(seg[0]), bool(seg[1])
-        n = int(seg[2]) if len(seg) > 2 else points
+        n = int(seg[2]) if len(seg) > 2 and seg[2] is not None else points
+        path = seg[3] if len(seg) > 3 else "hold"
+        if path not in paths:
+            raise ValueError(f"schedule path {path!r}: expected 'hold'"
+                             + (" or 'release'" if release_params is not None else
+                                " ('release' needs release_params)"))
+        run.pt = paths[path]
         while run.t < t_end and not stopped:
             guard += 1
             if guard > limit:

@@ -1,4 +1,4 @@
-"""Where the power goes during the PWM hold: supply, copper, sense, switch, freewheel.
+"""Where the power goes during the hold: supply, copper, sense, switch, freewheel.
 
 Every PWM off-time is a small turn-off: the coil current flows on through the freewheel
 path, and whatever voltage that path holds against it takes power. From the exact
@@ -26,6 +26,12 @@ energy is the same at the start and end of every period, so the supply power equ
 sum of the others exactly (the tests check this). Switching loss is not part of that
 ideal balance; it is estimated separately from the board's rise and fall times with the
 usual linear-transition approximation ``E = 1/2 V I t`` per edge (common practice).
+
+A current-mode hold (hysteretic band or fixed off time,
+:mod:`coildrive.model.current_mode`) switches the same two exponential segments, only
+ended by current thresholds instead of a timer: its steady state has the same
+per-period integrals, so :func:`element_powers` gives its element powers by the same
+formulas (with ``1 / T`` of the switching period).
 """
 
 from __future__ import annotations
@@ -83,19 +89,41 @@ def hold_losses(drive: Drive, lp: Loop, ss: PwmSteadyState, frequency,
                 rise_time: float = 0.0, fall_time: float = 0.0,
                 diode_drop: float | None = None, zener_voltage: float | None = None,
                 resistance: float | None = None) -> HoldLosses:
-    """Average powers of every element during the hold steady state ``ss`` (W).
+    """Average powers of every element during the PWM hold steady state ``ss`` (W).
 
     ``lp`` must be the loop the steady state was computed with; with ``lp.bypassed``
     (the slow hold path of split decay) the off-times go through the diode and the
     bypass switch. ``diode_drop``, ``zener_voltage`` and ``resistance`` override the
     freewheel path's element values. ``rise_time``/``fall_time`` (s) are the switch's
-    voltage transition times for the switching estimate.
+    voltage transition times for the switching estimate. See :func:`element_powers`.
+    """
+    return element_powers(drive, lp, ss.charge_on, ss.square_on, ss.charge_off, ss.square_off,
+                          frequency, ss.i_min, ss.i_max, ss.dcm, frequency, rise_time, fall_time,
+                          diode_drop, zener_voltage, resistance)
+
+
+def element_powers(drive: Drive, lp: Loop, charge_on, square_on, charge_off, square_off,
+                   rate, i_min, i_max, dcm, switching_rate, rise_time: float = 0.0,
+                   fall_time: float = 0.0, diode_drop: float | None = None,
+                   zener_voltage: float | None = None,
+                   resistance: float | None = None) -> HoldLosses:
+    """Average powers (W) of every element over a periodic hold of two segments.
+
+    ``charge_*`` (A*s) and ``square_*`` (A^2*s) are ``int i dt`` and ``int i^2 dt``
+    over one period's switch-on and freewheel segments, ``rate`` the number of periods
+    per second (``1 / T``, Hz), so ``Q * rate`` is the segment's share of the mean
+    current. ``i_min``/``i_max`` (A) are the currents the switch takes over at turn-on
+    and interrupts at turn-off, ``dcm`` marks a current that dies out in the off time
+    (the switch then turns on against the bus voltage alone), ``switching_rate`` the
+    edge pairs per second (Hz; 0 where nothing switches). Any two-segment hold fits:
+    the PWM hold (:func:`hold_losses`) and the current-mode holds of
+    :mod:`coildrive.model.current_mode`.
     """
     fw = drive.freewheel
     sense = drive.board.sense
-    f = np.asarray(frequency, float)
-    q_on, s_on = ss.charge_on * f, ss.square_on * f      # A, A^2 averaged over a period
-    q_off, s_off = ss.charge_off * f, ss.square_off * f
+    f = np.asarray(rate, float)
+    q_on, s_on = charge_on * f, square_on * f      # A, A^2 averaged over a period
+    q_off, s_off = charge_off * f, square_off * f
     zero = np.zeros_like(q_on)
     bypassed = bool(getattr(lp, "bypassed", False))
     clamp = fw.type == "clamp" and diode_drop is None and not bypassed
@@ -112,7 +140,7 @@ def hold_losses(drive: Drive, lp: Loop, ss: PwmSteadyState, frequency,
         r_bp = fw.bypass_resistance
         diode_p, zener_p, res_p, clamp_p = vd * q_off, zero, zero, zero
         bypass_p = r_bp * s_off
-        v_turn_off = lp.supply + vd + r_bp * ss.i_max
+        v_turn_off = lp.supply + vd + r_bp * i_max
     elif clamp:
         diode_p, zener_p, res_p = zero, zero, zero
         clamp_p = fw.clamp_voltage * q_off
@@ -120,13 +148,13 @@ def hold_losses(drive: Drive, lp: Loop, ss: PwmSteadyState, frequency,
     else:
         diode_p, zener_p, res_p = vd * q_off, vz * q_off, rf * s_off
         clamp_p = zero
-        v_turn_off = lp.supply + vd + vz + rf * ss.i_max
+        v_turn_off = lp.supply + vd + vz + rf * i_max
     # Linear voltage/current transitions (common practice): 1/2 V I t per edge. At
     # turn-on the switch takes over i_min from the freewheel path (zero in DCM, when
     # it sees only the bus voltage); at turn-off it interrupts i_max.
-    v_turn_on = np.where(ss.dcm, lp.supply, v_turn_off)
-    e_edges = 0.5 * v_turn_on * ss.i_min * rise_time + 0.5 * v_turn_off * ss.i_max * fall_time
-    switching = e_edges * f
+    v_turn_on = np.where(dcm, lp.supply, v_turn_off)
+    e_edges = 0.5 * v_turn_on * i_min * rise_time + 0.5 * v_turn_off * i_max * fall_time
+    switching = e_edges * np.asarray(switching_rate, float)
     return HoldLosses(supply=supply, coil=coil, sense=sense_p, switch_conduction=cond,
                       switch_switching=switching, diode=diode_p, zener=zener_p,
                       resistor=res_p, clamp=clamp_p, bypass=bypass_p)

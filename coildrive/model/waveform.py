@@ -130,7 +130,6 @@ def _split_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_tim
     through the fast one, the bypass opening as ``freewheel.bypass_lead`` says."""
     fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
     v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
-    f_off, f_v = float(fast.r_off), float(fast.v_off)
     big = 40 * points
     tp = np.linspace(0.0, peak_time, big + 1)
     ip = rise_current(tp, 0.0, v, r_on, ind)
@@ -138,14 +137,34 @@ def _split_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_tim
         peak_time, float(ip[-1]), v, r_on, r_off, v_off, ind, duty, frequency, hold_time, points)
     period = 1.0 / frequency
     t_last = t_cut - duty * period  # start of the last on-time
-    lead = drive.freewheel.bypass_lead
     ts, cs, ons = [tp, t_hold], [ip, i_hold], [np.ones_like(tp), on_hold]
+    t_open, zero = split_release(drive, lp, fast, t_cut, i_cut, t_last, float(starts[-1]), t_hold,
+                                 big, ts, cs, ons)
+    return split_waveform(drive, lp, fast, supply, ts, cs, ons, t_open,
+                          {"on": 0.0, "hold": peak_time, "off": t_cut, "zero": zero,
+                           "bypass_open": t_open}, label)
+
+
+def split_release(drive: Drive, lp, fast, t_cut: float, i_cut: float, t_last: float,
+                  i_last: float, sampled, big: int, ts: list, cs: list, ons: list):
+    """Append the samples of a split-decay release to ``ts``/``cs``/``ons`` (s, A, 0/1).
+
+    The hold's last on-time runs from ``t_last`` s (current ``i_last`` A) to the final
+    turn-off at ``t_cut`` s (``i_cut`` A) through the slow loop ``lp``; ``fast`` is the
+    release loop. The bypass opens ``freewheel.bypass_lead`` s before the turn-off (no
+    earlier than ``t_last``; a sample is added there unless ``sampled`` has it), or
+    ``-bypass_lead`` s after it, the current decaying slowly until then. Returns
+    ``(bypass opening time s, time the current reaches zero s)``.
+    """
+    v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
+    f_off, f_v = float(fast.r_off), float(fast.v_off)
+    lead = drive.freewheel.bypass_lead
     if lead >= 0:
         t_open = max(t_cut - lead, t_last)
-        if t_open < t_cut and not np.any(t_hold == t_open):
+        if t_open < t_cut and not np.any(sampled == t_open):
             # a sample where the bypass opens, inside the last on-time
             ts.append(np.array([t_open]))
-            cs.append(rise_current(np.array([t_open - t_last]), starts[-1], v, r_on, ind))
+            cs.append(rise_current(np.array([t_open - t_last]), i_last, v, r_on, ind))
             ons.append(np.ones(1))
         t_fast, i_fast = t_cut, i_cut
     else:
@@ -163,6 +182,14 @@ def _split_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_tim
         ts.append(t_fast + td)
         cs.append(decay_current(td, i_fast, f_off, f_v, ind))
         ons.append(np.zeros_like(td))
+    return t_open, t_fast + tz
+
+
+def split_waveform(drive: Drive, lp, fast, supply: float, ts: list, cs: list, ons: list,
+                   t_open: float, events: dict, label: str) -> Waveform:
+    """A :class:`Waveform` from sample pieces of a split-decay actuation: sorted in time,
+    the bypass on before ``t_open`` s, the switch voltage of the slow loop ``lp`` while it
+    is on and of the fast loop ``fast`` after."""
     time = np.concatenate(ts)
     order = np.argsort(time, kind="stable")
     time = time[order]
@@ -172,8 +199,6 @@ def _split_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_tim
     slow_v, sense = _switch_and_sense(drive, lp, supply, current, on)
     fast_v, _ = _switch_and_sense(drive, fast, supply, current, on)
     v_sw = np.where(bypass == 1, slow_v, fast_v)
-    zero = t_fast + tz
-    events = {"on": 0.0, "hold": peak_time, "off": t_cut, "zero": zero, "bypass_open": t_open}
     return Waveform(time, current, on, v_sw, sense, events, label, bypass_on=bypass)
 
 
@@ -198,32 +223,59 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     the open stop and the current is zero. Every PWM edge is a sample. The hold follows
     the armature too: if the current falls below the stay current the armature lifts.
     ``method``: ``"numpy"`` or a scipy ``solve_ivp`` method (the reference path).
+
+    With split decay the hold's off-times take the slow path and the final release the
+    fast one: the bypass opens ``freewheel.bypass_lead`` s before the final turn-off
+    (inside the last on-time, a sample there) or ``-bypass_lead`` s after it, the
+    current decaying slowly until then; ``bypass_on`` and ``events["bypass_open"]`` say
+    when.
     """
     from .armature import params_from_loop, _time_bound
     from .armature_sim import simulate
 
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
     p = params_from_loop(drive.armature, lp, l_factor)
+    split = split_decay(drive)
+    fast = p_rel = None
+    if split:
+        fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
+        p_rel = params_from_loop(drive.armature, fast, l_factor)
+    lead = drive.freewheel.bypass_lead if split else 0.0
+    lag = max(-lead, 0.0)
     big = 40 * points
     period = 1.0 / frequency
     n = max(1, int(round(hold_time * frequency)))
     t_on = duty * period
+    t_off = peak_time + (n - 1) * period + t_on
+    # the bypass opens inside the last on-time (no earlier than its start) or after the
+    # turn-off; without split decay there is no bypass
+    t_open = (t_off - min(lead, t_on) if lead >= 0 else t_off + lag) if split else math.inf
     schedule = []
     if peak_time > 0:
         schedule.append((peak_time, True, big))
     for k in range(n):
         start = peak_time + k * period
         if t_on > 0:
+            if k == n - 1 and split and start < t_open < t_off:
+                schedule.append((t_open, True, points))  # a sample where the bypass opens
             schedule.append((start + t_on, True, points))
         if k < n - 1 and t_on < period:
             schedule.append((start + period, False, points))
-    t_off = peak_time + (n - 1) * period + t_on
     i_max = float(p.v_on[0] / p.r_on[0])
     t_un = float(decay_time(min(float(p.stay_current[0]), i_max), i_max, p.r_off[0], p.v_off[0],
                             p.l_closed[0]))
     bound = float(_time_bound(t_un, p.l_closed[0], p.r_off[0], p.mass[0], p.stroke[0],
                               p.damping[0], p.preload[0] + p.load[0]))
-    schedule.append((t_off + bound, False, big))
+
+    def release_segments(t_cut):
+        """The off segments after the final turn-off at ``t_cut``, each naming its path."""
+        if not split:
+            return [(t_cut + bound, False, big)]
+        if lag > 0:
+            return [(t_cut + lag, False, big, "hold"), (t_cut + lag + bound, False, big, "release")]
+        return [(t_cut + bound, False, big, "release")]
+
+    schedule += release_segments(t_off)
     released = (lambda r: r.t >= t_off and r.state == "open" and not r.live)
     tr = None
     if peak_time > 0:
@@ -236,10 +288,17 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
             th, ih, oh, t_cut, i_cut, starts = hold_samples(
                 peak_time, i0, v, r_on, r_off, v_off, float(p.l_closed[0]), duty, frequency,
                 hold_time, points)
+            if split and t_cut - t_on < t_open < t_cut and not np.any(th == t_open):
+                # a sample where the bypass opens, inside the last on-time
+                at = int(np.searchsorted(th, t_open))
+                i_open = rise_current(t_open - (t_cut - t_on), float(starts[-1]), v, r_on,
+                                      float(p.l_closed[0]))
+                th, ih, oh = np.insert(th, at, t_open), np.insert(ih, at, i_open), np.insert(oh, at, 1.0)
             if float(np.min(starts)) >= float(p.stay_current[0]):
-                tail = simulate(p, [(t_cut + bound, False, big)], state="seated",
+                tail = simulate(p, release_segments(t_cut), state="seated",
                                 flux=float(p.l_closed[0]) * i_cut, method=method, points=points,
-                                stop=lambda r: r.state == "open" and not r.live, t0=t_cut)
+                                stop=lambda r: r.state == "open" and not r.live, t0=t_cut,
+                                release_params=p_rel)
                 zeros = np.zeros_like(th)
                 tr = head
                 tr.time = np.concatenate([head.time, th, tail.time[1:]])
@@ -251,14 +310,22 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
                 tr.log = head.log + tail.log
                 tr.events = {**tail.events, **head.events}
     if tr is None:
-        tr = simulate(p, schedule, method=method, points=points, stop=released)
+        tr = simulate(p, schedule, method=method, points=points, stop=released,
+                      release_params=p_rel)
     current = tr.current
     on = tr.switch_on
     v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
+    bypass = None
+    if split:
+        bypass = (tr.time < t_open).astype(np.int8)
+        fast_v, _ = _switch_and_sense(drive, fast, supply, current, on)
+        v_sw = np.where(bypass == 1, v_sw, fast_v)
     ev = tr.events
     events = {"on": 0.0, "hold": peak_time, "off": t_off}
     after = [t for t, name in tr.log if name == "zero" and t >= t_off]
     events["zero"] = after[0] if after else float(tr.time[-1])
+    if split:
+        events["bypass_open"] = t_open
     for name in ("move", "impact", "dip_current"):
         if name in ev:
             events[name] = float(ev[name])
@@ -270,7 +337,7 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
         if times:
             events[name] = times[-1] if name == "open" else times[0]
     return Waveform(tr.time, current, on, v_sw, sense, events, label, position=tr.position,
-                    velocity=tr.velocity)
+                    velocity=tr.velocity, bypass_on=bypass)
 
 
 def hold_samples(t_start: float, i0: float, v: float, r_on: float, r_off: float, v_off: float,
