@@ -16,7 +16,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from .errors import InputError
+from .errors import InputError, unreadable
 from .resources import bundled_boards
 from .units import parse_quantity
 
@@ -436,10 +436,8 @@ def _read_toml(path: Path) -> dict:
     source = str(path)
     try:
         text = path.read_bytes()
-    except FileNotFoundError:
-        raise InputError(source, "", "file not found") from None
     except OSError as err:
-        raise InputError(source, "", f"cannot be read ({err.strerror})") from None
+        raise unreadable(source, err) from None
     try:
         return tomllib.loads(text.decode("utf-8"))
     except UnicodeDecodeError:
@@ -466,6 +464,13 @@ def _table(source: str, data: dict, name: str, required: bool = True) -> dict | 
             raise InputError(source, name, f"missing section [{name}]")
         return None
     return data[name]
+
+
+def _section(source: str, data: dict, name: str, required: bool = True) -> _Section:
+    """The ``[name]`` table of the file ``source`` (parsed as ``data``) to read key by key;
+    an empty one when it is not ``required`` and missing."""
+    table = _table(source, data, name, required)
+    return _Section(source, {} if table is None else table, name)
 
 
 def _merged(board_source: str, board_table: dict | None, drive_source: str,
@@ -624,10 +629,7 @@ def load_board(path: str | Path) -> Board:
     name = root.text("name")
     description = root.text("description", "")
 
-    def sec(name: str) -> _Section:
-        return _Section(source, _table(source, data, name), name)
-
-    s = sec("timer")
+    s = _section(source, data, "timer")
     timer = Timer(s.quantity("clock", "frequency", positive=True),
                   s.integer("bits", low=8, high=32),
                   s.integer("prescaler_max", 1, low=1, high=2**32 - 1),
@@ -637,27 +639,27 @@ def load_board(path: str | Path) -> Board:
         raise s.fail("prescalers", f"{max(timer.prescalers)} is above timer.prescaler_max "
                      f"({timer.prescaler_max})")
     s.finish()
-    s = sec("adc")
+    s = _section(source, data, "adc")
     adc = Adc(s.integer("bits", low=6, high=24),
               s.quantity("reference", "voltage", positive=True),
               s.quantity("sample_rate", "frequency", positive=True))
     s.finish()
-    s = sec("sense")
+    s = _section(source, data, "sense")
     sense = Sense(s.quantity("resistance", "resistance", positive=True),
                   s.quantity("gain", "dimensionless", 1.0, positive=True),
                   s.choice("position", SENSE_POSITIONS))
     s.finish()
-    s = sec("supply_sense")
+    s = _section(source, data, "supply_sense")
     supply_sense = SupplySense(s.quantity("divider", "dimensionless"))
     if supply_sense.divider < 1:
         raise s.fail("divider", f"{supply_sense.divider:g} is below 1, expected bus voltage / pin voltage >= 1")
     s.finish()
-    switch = _read_switch(sec("switch"))
-    freewheel = _read_freewheel(sec("freewheel"))
-    s = sec("link")
+    switch = _read_switch(_section(source, data, "switch"))
+    freewheel = _read_freewheel(_section(source, data, "freewheel"))
+    s = _section(source, data, "link")
     link = Link(s.integer("baud", low=300, high=100_000_000))
     s.finish()
-    s = sec("tick")
+    s = _section(source, data, "tick")
     tick = Tick(s.quantity("rate", "frequency", positive=True))
     s.finish()
     return Board(name, description, timer, adc, sense, supply_sense, switch, freewheel, link,
@@ -710,11 +712,8 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
             raise InputError(source, "board", err.message) from None
     brd = load_board(board_path)
 
-    def sec(name: str) -> _Section:
-        return _Section(source, _table(source, data, name), name)
-
-    armature = _read_armature(sec("armature")) if "armature" in data else None
-    s = sec("coil")
+    armature = _read_armature(_section(source, data, "armature")) if "armature" in data else None
+    s = _section(source, data, "coil")
     coil = Coil(
         resistance=s.quantity("resistance", "resistance", positive=True),
         reference_temp=s.quantity("reference_temp", "temperature", 20.0),
@@ -726,7 +725,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
         tolerance_distribution=s.choice("tolerance_distribution", DISTRIBUTIONS, "uniform"),
     )
     s.finish()
-    s = sec("supply")
+    s = _section(source, data, "supply")
     supply = Supply(s.quantity("min", "voltage", positive=True),
                     s.quantity("nominal", "voltage", positive=True),
                     s.quantity("max", "voltage", positive=True))
@@ -736,7 +735,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
         raise s.fail("nominal", f"{supply.nominal:g} V is outside min..max "
                      f"({supply.min:g}..{supply.max:g} V)")
     s.finish()
-    s = sec("ambient")
+    s = _section(source, data, "ambient")
     ambient = Ambient(s.quantity("min", "temperature"), s.quantity("max", "temperature"))
     if ambient.min > ambient.max:
         raise s.fail("min", f"{ambient.min:g} degC is above ambient.max ({ambient.max:g} degC), "
@@ -744,7 +743,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
     if ambient.min < -273.15:
         raise s.fail("min", "is below absolute zero")
     s.finish()
-    s = sec("thermal")
+    s = _section(source, data, "thermal")
     thermal = Thermal(s.quantity("resistance", "thermal_resistance", nonnegative=True),
                       s.quantity("max_coil_temp", "temperature"))
     if thermal.max_coil_temp <= ambient.max:
@@ -770,14 +769,14 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
         return mech
 
     optional = armature is not None
-    s = _Section(source, _table(source, data, "pull_in", required=not optional) or {}, "pull_in")
+    s = _section(source, data, "pull_in", required=not optional)
     pull_in = PullIn(current(s, "current", None if need is None else need["pull_in"]),
                      s.quantity("margin", "dimensionless", 1.5))
     if pull_in.margin < 1:
         raise s.fail("margin", f"{pull_in.margin:g} is below 1, expected a factor >= 1 on the "
                      "worst-case pull-in time (e.g. 1.5)")
     s.finish()
-    s = sec("hold")
+    s = _section(source, data, "hold")
     hold = Hold(current(s, "current", None if need is None else need["hold"]),
                 s.quantity("frequency", "frequency", positive=True),
                 s.choice("mode", HOLD_MODES, "voltage"),
@@ -788,7 +787,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
         raise s.fail("current", f"{hold.current:g} A{what} is not below pull_in.current "
                      f"({pull_in.current:g} A), expected hold < pull-in")
     s.finish()
-    s = _Section(source, _table(source, data, "release", required=not optional) or {}, "release")
+    s = _section(source, data, "release", required=not optional)
     release = Release(current(s, "current", None if need is None else need["release"]))
     if release.current >= hold.current:
         what = " (derived from the mechanics)" if "release.current" in derived else ""

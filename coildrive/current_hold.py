@@ -44,7 +44,7 @@ import numpy as np
 from .config import Drive
 from .corners import CornerGrid, corner_grid, nominal_point
 from .errors import InputError
-from .evaluate import PointResults, release_figures
+from .evaluate import PointResults, release_figures, switch_voltage_peak
 from .model.circuit import loop, split_decay
 from .model.current_mode import (CurrentModeSteadyState, hysteretic_steady_state,
                                  off_time_steady_state)
@@ -288,12 +288,7 @@ def evaluate_current(drive: Drive, th: Thresholds, supply, ambient, r_factor, l_
     else:
         lp_rel = lp
     t_drop, t_zero, energy, i_fast = release_figures(drive, lp, lp_rel, i_off)
-    interrupt = np.maximum(i_peak, ss.i_max)
-    # the end of the peak and every hold off-time turn off into the hold's path, the
-    # release into the release path (the same one without split decay)
-    v_sw = lp.switch_voltage(drive, interrupt)
-    if lp_rel is not lp:
-        v_sw = np.maximum(v_sw, lp_rel.switch_voltage(drive, i_fast))
+    interrupt, v_sw = switch_voltage_peak(drive, lp, lp_rel, i_peak, ss.i_max, i_fast)
     res = PointResults(supply=supply, ambient=ambient, coil_temp=temp, r_factor=r_factor,
                        l_factor=l_factor, loop=lp, pull_in_time=t_pull, peak_end_current=i_peak,
                        hold=ss, coil_power=power, release_time=t_drop, release_zero_time=t_zero,
@@ -555,7 +550,7 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
     With split decay the hold's off segments take the slow path and the release the
     fast one, the bypass opening as ``freewheel.bypass_lead`` says (within the last
     on-time, or after the turn-off for a negative lead; a ``bypass_on`` column)."""
-    from .model.waveform import Waveform, split_release, split_waveform
+    from .model.waveform import peak_samples, release_waveform, split_release, split_waveform
 
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
     v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
@@ -581,11 +576,7 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
         ons.append(np.zeros_like(t))
         return t0 + dur, float(cs[-1][-1])
 
-    tp = np.linspace(0.0, peak_time, big + 1)
-    ts.append(tp)
-    cs.append(rise_current(tp, 0.0, v, r_on, ind))
-    ons.append(np.ones_like(tp))
-    t, i = peak_time, float(cs[-1][-1])
+    t, i = peak_time, peak_samples(peak_time, v, r_on, ind, big, ts, cs, ons)
     end = peak_time + hold_time
     regulated = upper < a
     first = True
@@ -611,19 +602,7 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
         return split_waveform(drive, lp, fast, supply, ts, cs, ons, t_open,
                               {"on": 0.0, "hold": peak_time, "off": t_off_edge, "zero": zero,
                                "bypass_open": t_open}, label)
-    tz = float(decay_time(0.0, i, r_off, v_off, ind))
-    td = np.linspace(0.0, tz, big + 1)[1:]
-    ts.append(t_off_edge + td)
-    cs.append(decay_current(td, i, r_off, v_off, ind))
-    ons.append(np.zeros_like(td))
-    time = np.concatenate(ts)
-    current = np.concatenate(cs)
-    on = np.concatenate(ons).astype(np.int8)
-    v_sw = np.where(on == 1, current * drive.switch.on_resistance,
-                    np.where(current > 0, lp.switch_voltage(drive, current), float(supply)))
-    sense = current if drive.board.sense.position == "coil" else current * on
-    events = {"on": 0.0, "hold": peak_time, "off": t_off_edge, "zero": t_off_edge + tz}
-    return Waveform(time, current, on, v_sw, sense, events, label)
+    return release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_off_edge, i, big, label)
 
 
 def _waveform(drive: Drive, th: Thresholds, res: PointResults, k: int, peak_time: float, label: str):

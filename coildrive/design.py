@@ -28,6 +28,7 @@ from . import __version__
 from .config import Drive
 from .corners import CornerGrid, corner_grid, nominal_point
 from .evaluate import PointResults, evaluate, required_duty
+from .jsondoc import document_head, json_ready
 from .model.circuit import loop, split_decay
 from .model.losses import HoldLosses, hold_losses
 from .model.waveform import actuation
@@ -314,19 +315,8 @@ class Design:
 
     def to_dict(self) -> dict:
         """Plain JSON-ready dict (the ``design --json`` document)."""
-        def clean(value):
-            if isinstance(value, float):
-                return value if math.isfinite(value) else None
-            if isinstance(value, dict):
-                return {k: clean(v) for k, v in value.items()}
-            if isinstance(value, (list, tuple)):
-                return [clean(v) for v in value]
-            return value
         out = {
-            "coildrive_version": self.version,
-            "input_hash": self.input_hash,
-            "drive": self.drive.name,
-            "board": self.drive.board.name,
+            **document_head(self.drive, self.version, self.input_hash),
             "ok": self.ok,
             "pull_in": asdict(self.pull_in),
             "hold": asdict(self.hold),
@@ -348,7 +338,7 @@ class Design:
             out["current_mode"] = asdict(self.extra["current_mode"])
         if self.monte_carlo is not None:
             out["monte_carlo"] = self.monte_carlo
-        return clean(out)
+        return json_ready(out)
 
 
 def _corner_dict(c: Corner) -> dict:

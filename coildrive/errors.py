@@ -19,3 +19,14 @@ class InputError(CoildriveError):
         self.message = message
         parts = [p for p in (source, key) if p]
         super().__init__(": ".join(parts + [message]))
+
+
+def unreadable(source: str, err: OSError, expected: str | None = None) -> InputError:
+    """The :class:`InputError` for the input file ``source`` that ``err`` kept from being
+    read: not found, a folder (said so when ``expected`` names what it should be, e.g.
+    ``"a capture file"``), or the system's reason."""
+    if isinstance(err, FileNotFoundError):
+        return InputError(source, "", "file not found")
+    if expected is not None and isinstance(err, IsADirectoryError):
+        return InputError(source, "", f"is a folder, expected {expected}")
+    return InputError(source, "", f"cannot be read ({err.strerror})")

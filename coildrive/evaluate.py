@@ -213,17 +213,24 @@ def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
             energy = (freewheel_element_energy(drive, lp, q1, s1)
                       + freewheel_element_energy(drive, lp_rel, q - q1, s - s1))
             i_fast = rb.fast_current.reshape(shape)
-    interrupt = np.maximum(i_peak, ss.i_max)
-    # The end of the peak and every hold off-time turn off into the hold's path; the
-    # release into the release path (the same one without split decay).
-    v_sw = lp.switch_voltage(drive, interrupt)
-    if lp_rel is not lp:
-        v_sw = np.maximum(v_sw, lp_rel.switch_voltage(drive, i_fast))
+    interrupt, v_sw = switch_voltage_peak(drive, lp, lp_rel, i_peak, ss.i_max, i_fast)
     return PointResults(supply=supply, ambient=ambient, coil_temp=temp, r_factor=r_factor,
                         l_factor=l_factor, loop=lp, pull_in_time=t_pull, peak_end_current=i_peak,
                         hold=ss, coil_power=power, release_time=t_drop, release_zero_time=t_zero,
                         release_energy=energy, interrupt_current=interrupt,
                         peak_switch_voltage=v_sw, armature=arm, release_loop=lp_rel)
+
+
+def switch_voltage_peak(drive: Drive, lp: Loop, lp_rel: Loop, i_peak, i_max, i_fast):
+    """``(current interrupted A, peak switch voltage V)``: the end of the peak (``i_peak``
+    A) and every hold off-time (up to ``i_max`` A) turn off into the hold's path ``lp``;
+    the release into the release path ``lp_rel`` (the same one without split decay),
+    which takes over at ``i_fast`` A (see :func:`release_figures`)."""
+    interrupt = np.maximum(i_peak, i_max)
+    v_sw = lp.switch_voltage(drive, interrupt)
+    if lp_rel is not lp:
+        v_sw = np.maximum(v_sw, lp_rel.switch_voltage(drive, i_fast))
+    return interrupt, v_sw
 
 
 def release_figures(drive: Drive, lp: Loop, lp_rel: Loop, i_off):

@@ -8,6 +8,8 @@ import tempfile
 from pathlib import Path
 from typing import Iterator
 
+from .errors import InputError
+
 
 @contextlib.contextmanager
 def atomic_path(path: str | os.PathLike) -> Iterator[str]:
@@ -17,11 +19,17 @@ def atomic_path(path: str | os.PathLike) -> Iterator[str]:
     The file gets the mode a plain ``open()`` would give (``mkstemp`` makes it 0600), and
     ``os.replace`` is atomic on POSIX and Windows, so a reader never sees half a file and
     an existing file is never left truncated if the process dies part-way. A folder that
-    cannot be written raises :class:`OSError` before the block runs.
+    is missing or cannot be written raises :class:`~coildrive.errors.InputError` (naming
+    ``path``) before the block runs.
     """
     target = Path(path)
     folder = target.parent if str(target.parent) else Path(".")
-    fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=folder)
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=folder)
+    except FileNotFoundError:
+        raise InputError(str(path), "", f"cannot be written: the folder {str(folder)!r} does not exist") from None
+    except OSError as err:
+        raise InputError(str(path), "", f"cannot be written ({err.strerror})") from None
     os.close(fd)
     try:
         umask = os.umask(0)

@@ -1,4 +1,5 @@
-"""Plot of a Design's actuation waveforms (matplotlib, Agg). Imported only for --plot."""
+"""Plot of a Design's actuation waveforms (matplotlib, Agg), and the figure helpers the other
+plots share. Imported only for --plot."""
 
 from __future__ import annotations
 
@@ -7,15 +8,29 @@ import io
 from .design import Design
 
 
-def plot_design(d: Design) -> bytes:
-    """PNG bytes: coil current at the nominal and the worst pull-in corner, phases marked."""
+def agg_figure(**kwargs):
+    """A matplotlib ``Figure`` on the Agg backend (no display needed); keyword arguments
+    as for :class:`matplotlib.figure.Figure` (``figsize`` in inches, ``dpi``)."""
     import matplotlib
 
     matplotlib.use("Agg")
     from matplotlib.figure import Figure
 
+    return Figure(**kwargs)
+
+
+def png_bytes(fig) -> bytes:
+    """The PNG bytes of ``fig``, laid out tight."""
+    fig.tight_layout()
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png")
+    return buf.getvalue()
+
+
+def plot_design(d: Design) -> bytes:
+    """PNG bytes: coil current at the nominal and the worst pull-in corner, phases marked."""
     moving = d.armature is not None
-    fig = Figure(figsize=(9, 7.5 if moving else 5), dpi=110)
+    fig = agg_figure(figsize=(9, 7.5 if moving else 5), dpi=110)
     if moving:
         ax, ax_x = fig.subplots(2, 1, sharex=True, gridspec_kw={"height_ratios": [3, 2]})
     else:
@@ -48,10 +63,7 @@ def plot_design(d: Design) -> bytes:
                  f"{d.hold.frequency_hz / 1e3:.4g} kHz, peak {d.pull_in.peak_time_s * 1e3:.3g} ms")
     ax.grid(alpha=0.3)
     ax.legend(fontsize=7, loc="upper right")
-    fig.tight_layout()
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png")
-    return buf.getvalue()
+    return png_bytes(fig)
 
 
 def _bypass_trace(d: Design, ax, colours: dict) -> None:

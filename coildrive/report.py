@@ -165,11 +165,22 @@ def print_design(d: Design, console: Console | None = None) -> None:
     console.print(checks_table(d))
     if d.monte_carlo is not None:
         console.print(monte_carlo_table(d.monte_carlo))
+    print_cautions(console, d.cautions)
+    print_verdict(console, d.ok, "design ok", "design FAILED", [c.name for c in d.failed])
+
+
+def print_cautions(console: Console, cautions, highlight: bool | None = None) -> None:
+    """The ``Cautions`` block of a terminal report: a heading, then ``  ! caution`` per
+    line (as text: rich markup in a caution is escaped). ``highlight`` as for
+    :meth:`rich.console.Console.print`."""
     console.print("[bold]Cautions[/bold]")
-    for c in d.cautions:
-        console.print(f"  ! {escape(c)}")
-    if d.ok:
-        console.print("[green]design ok[/green]")
+    for c in cautions:
+        console.print(f"  ! {escape(c)}", highlight=highlight)
+
+
+def print_verdict(console: Console, ok: bool, passed: str, failed: str, names) -> None:
+    """The last line of a report: ``passed`` in green, or ``failed: name, name`` in red."""
+    if ok:
+        console.print(f"[green]{passed}[/green]")
     else:
-        names = ", ".join(c.name for c in d.failed)
-        console.print(f"[bold red]design FAILED[/bold red]: {names}")
+        console.print(f"[bold red]{failed}[/bold red]: " + ", ".join(names))

@@ -30,6 +30,7 @@ import numpy as np
 from .config import Drive, Hold, Timer
 from .corners import CornerGrid, corner_grid
 from .errors import InputError
+from .jsondoc import json_ready
 from .model.circuit import COPPER_ALPHA, loop
 from .model.losses import hold_losses
 from .model.pwm import duty_for_mean, pwm_steady_state
@@ -416,7 +417,7 @@ class Candidate:
     failed: list[str]
 
     def to_dict(self) -> dict:
-        return _clean(dataclasses.asdict(self))
+        return json_ready(dataclasses.asdict(self))
 
 
 @dataclass(frozen=True)
@@ -494,18 +495,6 @@ class TuneResult:
         if self.recommendation is None:
             raise ValueError("no feasible setting")
         return dataclasses.replace(self.drive, hold=recommended_hold(self.drive, self.recommendation))
-
-
-def _clean(value):
-    if isinstance(value, float):
-        return value if math.isfinite(value) else None
-    if isinstance(value, dict):
-        return {k: _clean(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_clean(v) for v in value]
-    if isinstance(value, np.generic):
-        return _clean(value.item())
-    return value
 
 
 def _exact(x: float) -> str:

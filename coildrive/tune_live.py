@@ -169,15 +169,14 @@ def bench_point(drive: Drive, supply: float | None = None, coil_temp: float | No
     codes through the board's divider, else ``supply.nominal``) and ``coil_temp`` degC
     (else the median of the device's TEMPERATURE events, milli-degC, else the coil's
     reference temperature clipped into the ambient range)."""
+    from .bench.check import supply_from_codes
     from .corners import nominal_point
 
     nom = nominal_point(drive)
     if supply is not None:
         v, v_from = float(supply), "--supply"
     elif supply_codes:
-        adc = drive.board.adc
-        bits = adc_bits or adc.bits
-        v = float(np.median(supply_codes)) * adc.reference / 2**bits * drive.board.supply_sense.divider
+        v = supply_from_codes(drive, supply_codes, adc_bits)
         v_from = f"device SUPPLY events ({len(supply_codes)}, through the board's divider)"
     else:
         v, v_from = float(nom.supply[0]), "drive file: supply.nominal"

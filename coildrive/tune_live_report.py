@@ -12,7 +12,8 @@ from rich.markup import escape
 from rich.table import Table
 
 from . import __version__
-from .tune import _clean
+from .jsondoc import document_head, json_ready
+from .report import print_cautions
 
 
 def _a(amps: float | None) -> str:
@@ -104,9 +105,7 @@ def print_live(res, console: Console | None = None) -> None:
         console.print(f"[bold red]{escape(res.failure[1])}[/bold red]", highlight=False)
     console.print(("" if res.stopped else "[bold red]") + escape(res.stop_detail)
                   + ("" if res.stopped else "[/bold red]"), highlight=False)
-    console.print("[bold]Cautions[/bold]")
-    for line in [*BENCH_CAUTIONS, *(rec.cautions if rec is not None else [])]:
-        console.print(f"  ! {escape(line)}", highlight=False)
+    print_cautions(console, [*BENCH_CAUTIONS, *(rec.cautions if rec is not None else [])], highlight=False)
 
 
 def live_dict(res, port: str | None = None, capture: str | None = None, log: str | None = None) -> dict:
@@ -118,10 +117,7 @@ def live_dict(res, port: str | None = None, capture: str | None = None, log: str
     rec = res.recommendation
     des = res.design
     out = {
-        "coildrive_version": __version__,
-        "input_hash": res.drive.input_hash(),
-        "drive": res.drive.name,
-        "board": res.drive.board.name,
+        **document_head(res.drive, __version__, res.drive.input_hash()),
         "mode": "live",
         "ok": res.ok,
         "failure": None if res.failure is None else {"code": res.failure[0], "message": res.failure[1]},
@@ -163,4 +159,4 @@ def live_dict(res, port: str | None = None, capture: str | None = None, log: str
         "notes": list(res.notes),
         "cautions": [*BENCH_CAUTIONS, *(rec.cautions if rec is not None else [])],
     }
-    return _clean(out)
+    return json_ready(out)

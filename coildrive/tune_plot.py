@@ -2,10 +2,9 @@
 
 from __future__ import annotations
 
-import io
-
 import numpy as np
 
+from .plot import agg_figure, png_bytes
 from .tune import TuneResult
 
 
@@ -17,11 +16,6 @@ def plot_tune(r: TuneResult) -> bytes:
     total power (feasible settings green, infeasible grey), switch conduction and
     switching loss, and ripple against its limit. The recommendation is marked.
     """
-    import matplotlib
-
-    matplotlib.use("Agg")
-    from matplotlib.figure import Figure
-
     fg = r.figures
     base = r.level == r.level.min()
     order = np.argsort(r.frequency[base])
@@ -30,7 +24,7 @@ def plot_tune(r: TuneResult) -> bytes:
     total, ripple, feas = pick(fg.total_power), pick(fg.ripple), pick(r.feasible)
     cond, swl = pick(fg.conduction_power), pick(fg.switching_power)
 
-    fig = Figure(figsize=(9, 8), dpi=110)
+    fig = agg_figure(figsize=(9, 8), dpi=110)
     ax1 = fig.add_subplot(3, 1, 1)
     ax2 = fig.add_subplot(3, 1, 2, sharex=ax1)
     ax3 = fig.add_subplot(3, 1, 3, sharex=ax1)
@@ -61,7 +55,4 @@ def plot_tune(r: TuneResult) -> bytes:
         ax.legend(fontsize=7, loc="best")
     ax1.set_title(f"{r.drive.name} on {r.drive.board.name}: hold at {r.level.min():.4g} A, "
                   f"worst case over {len(r.grid)} corners")
-    fig.tight_layout()
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png")
-    return buf.getvalue()
+    return png_bytes(fig)

@@ -8,7 +8,9 @@ from rich.console import Console
 from rich.table import Table
 
 from . import __version__
-from .tune import Candidate, TuneResult, _clean
+from .jsondoc import document_head, json_ready
+from .report import print_cautions
+from .tune import Candidate, TuneResult
 from .units import format_si
 
 
@@ -85,9 +87,7 @@ def print_tune(r: TuneResult, design=None, console: Console | None = None) -> No
             names = ", ".join(c.name for c in design.failed)
             console.print(f"[bold red]the design of this setting fails: {names}[/bold red] "
                           "(run coildrive design on the drive file with this [hold])", highlight=False)
-        console.print("[bold]Cautions[/bold]")
-        for line in design.cautions:
-            console.print(f"  ! {line}", highlight=False)
+        print_cautions(console, design.cautions, highlight=False)
 
 
 def tune_dict(r: TuneResult, design=None) -> dict:
@@ -102,10 +102,7 @@ def tune_dict(r: TuneResult, design=None) -> dict:
         recommendation["hold_toml"] = r.hold_section()
     o = r.options
     out = {
-        "coildrive_version": __version__,
-        "input_hash": r.drive.input_hash(),
-        "drive": r.drive.name,
-        "board": r.drive.board.name,
+        **document_head(r.drive, __version__, r.drive.input_hash()),
         "ok": rec is not None and (design is None or design.ok),
         "sweep": {
             "min_frequency_hz": r.min_frequency, "max_frequency_hz": r.max_frequency,
@@ -126,4 +123,4 @@ def tune_dict(r: TuneResult, design=None) -> dict:
         out["design_ok"] = design.ok
         out["design_failed"] = [c.name for c in design.failed]
         out["cautions"] = list(design.cautions)
-    return _clean(out)
+    return json_ready(out)

@@ -1,5 +1,6 @@
 """The docs say what the code does: README commands, CI script and file-format keys."""
 
+import os
 import re
 
 from conftest import ROOT
@@ -31,3 +32,37 @@ def test_every_drive_key_is_documented():
     for cls in (Coil, Supply, Thermal, PullIn, Hold):
         for f in dataclasses.fields(cls):
             assert re.search(rf"^{f.name} = ", doc, re.M), f"{cls.__name__}.{f.name} not in docs/file-formats.md"
+
+
+def _github_anchors(path):
+    """The #anchors GitHub gives the headings of a Markdown file (lower case, punctuation
+    dropped, spaces to hyphens, -1, -2 ... for repeats); code blocks are not headings."""
+    text = re.sub(r"```.*?```", "", path.read_text(), flags=re.S)
+    seen, anchors = {}, set()
+    for heading in re.findall(r"^#{1,6}\s+(.+?)\s*#*\s*$", text, re.M):
+        slug = re.sub(r"[^\w\- ]", "", heading.strip().lower()).replace(" ", "-")
+        n = seen.get(slug, 0)
+        seen[slug] = n + 1
+        anchors.add(slug if n == 0 else f"{slug}-{n}")
+    return anchors
+
+
+def test_relative_links_and_anchors_resolve():
+    pages = [ROOT / "README.md", ROOT / "DEVELOPERS.md", *sorted((ROOT / "docs").glob("*.md"))]
+    broken = []
+    for page in pages:
+        text = re.sub(r"```.*?```", "", page.read_text(), flags=re.S)
+        # [text](target) links, and docs/page.md#anchor references written out in prose
+        targets = re.findall(r"\[[^\]]*\]\(([^)\s]+)\)", text)
+        targets += [os.path.relpath(ROOT / m, page.parent)
+                    for m in re.findall(r"(?<![\w/.])(docs/[\w\-]+\.md(?:#[\w\-]+)?)", text)]
+        for target in dict.fromkeys(targets):  # each once, in order
+            if re.match(r"[a-z][a-z0-9+.-]*:", target):
+                continue  # http:, mailto: ...
+            file_part, _, anchor = target.partition("#")
+            dest = (page.parent / file_part).resolve() if file_part else page
+            if not dest.exists():
+                broken.append(f"{page.name}: {target} (no such file)")
+            elif anchor and dest.suffix == ".md" and anchor not in _github_anchors(dest):
+                broken.append(f"{page.name}: {target} (no such heading)")
+    assert not broken, broken

@@ -44,3 +44,18 @@ def test_interrupted_write_keeps_old_file(tmp_path, monkeypatch):
         write_atomic(target, b"new bytes")
     assert target.read_text() == "the old header\n"
     assert [p.name for p in tmp_path.iterdir()] == ["out.h"]
+
+
+@pytest.mark.parametrize("args", [
+    ("design", "examples/demo-valve.toml", "--header", "{tmp}/missing/x.h"),
+    ("simulate", "examples/demo-valve.toml", "--supply", "24", "--coil-temp", "20", "--csv", "{tmp}/missing/w.csv"),
+])
+def test_output_in_a_missing_folder_is_one_line_and_exit_2(tmp_path, args):
+    from conftest import run_cli
+
+    r = run_cli(*(a.format(tmp=tmp_path) for a in args))
+    assert r.returncode == 2, r.stderr
+    assert "Traceback" not in r.stderr
+    lines = [ln for ln in r.stderr.splitlines() if ln.startswith("coildrive:")]
+    assert len(lines) == 1 and "missing" in lines[0] and "does not exist" in lines[0], r.stderr
+    assert not (tmp_path / "missing").exists()

@@ -44,7 +44,7 @@ from typing import Any, Iterable
 
 import numpy as np
 
-from ..errors import InputError
+from ..errors import InputError, unreadable
 from .messages import Event, EventKind, Info, Samples
 
 FORMAT_NAME = "coildrive-capture"
@@ -611,12 +611,8 @@ def read_capture(path: str | os.PathLike) -> Capture:
     source = str(path)
     try:
         data = Path(path).read_bytes()
-    except FileNotFoundError:
-        raise InputError(source, "", "file not found") from None
-    except IsADirectoryError:
-        raise InputError(source, "", "is a folder, expected a capture file") from None
     except OSError as err:
-        raise InputError(source, "", f"cannot be read ({err.strerror})") from None
+        raise unreadable(source, err, "a capture file") from None
     if data.startswith(_MAGIC):
         return _read_binary(data, source)
     return read_text_capture(data, source)

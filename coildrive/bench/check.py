@@ -28,6 +28,7 @@ import numpy as np
 from ..config import Board, Drive
 from ..corners import nominal_point
 from ..errors import InputError
+from ..jsondoc import json_ready
 from .analysis import Analysis, analyse
 from .capture_file import Capture
 from .messages import EventKind
@@ -124,17 +125,7 @@ class CheckReport:
 
     def to_dict(self) -> dict:
         """Plain JSON-ready dict (the ``check --json`` document)."""
-        def clean(v):
-            if isinstance(v, float):
-                return v if math.isfinite(v) else None
-            if isinstance(v, (np.floating, np.integer)):
-                return clean(v.item())
-            if isinstance(v, dict):
-                return {k: clean(x) for k, x in v.items()}
-            if isinstance(v, (list, tuple)):
-                return [clean(x) for x in v]
-            return v
-        return clean({
+        return json_ready({
             "ok": self.ok, "capture": self.capture_source, "drive": self.drive_name,
             "board": self.board_name, "operating_point": dataclasses.asdict(self.point),
             "tolerances": dataclasses.asdict(self.tolerances), "prediction": dict(self.prediction),
@@ -174,6 +165,17 @@ def prepare_capture(capture: Capture, board: Board) -> Capture:
     return capture.with_meta(**changes) if changes else capture
 
 
+def supply_from_codes(drive: Drive, codes, adc_bits: int | None = None) -> float:
+    """Bus voltage V from SUPPLY event codes: the median code at ``adc_bits`` (default:
+    the board's ADC bits), read as the middle of its ADC step (a converter's code ``k``
+    stands for inputs from ``k`` to ``k + 1`` steps: the same reading as ``coildrive
+    capture`` and the current samples), against the ADC reference, times the board's
+    ``supply_sense.divider``."""
+    adc = drive.board.adc
+    bits = adc_bits or adc.bits
+    return (float(np.median(codes)) + 0.5) * adc.reference / 2**bits * drive.board.supply_sense.divider
+
+
 def operating_point(drive: Drive, capture: Capture, supply: float | None = None,
                     coil_temp: float | None = None) -> OperatingPoint:
     """Where to predict (see the module docstring for the order of sources)."""
@@ -186,9 +188,7 @@ def operating_point(drive: Drive, capture: Capture, supply: float | None = None,
     else:
         codes = [e.value for e in capture.events if e.kind == EventKind.SUPPLY]
         if codes:
-            adc = drive.board.adc
-            bits = meta.adc_bits or adc.bits
-            v = float(np.median(codes)) * adc.reference / 2**bits * drive.board.supply_sense.divider
+            v = supply_from_codes(drive, codes, meta.adc_bits)
             v_from = f"capture SUPPLY events ({len(codes)}, through the board's divider)"
         else:
             v, v_from = float(nom.supply[0]), "drive file: supply.nominal"

@@ -52,7 +52,7 @@ from typing import Any
 
 import numpy as np
 
-from ..errors import CoildriveError, InputError
+from ..errors import CoildriveError, InputError, unreadable
 from ..fileio import atomic_path
 from .capture_file import DEFAULT_FLUSH_INTERVAL, CaptureWriter
 from .messages import Command, Event, EventKind, Info, Message, Opcode, Reply, Samples
@@ -683,12 +683,8 @@ def replay(raw_path: str | os.PathLike, out: str | os.PathLike, *, text: bool = 
     source = str(raw_path)
     try:
         handle = open(raw_path, "rb")
-    except FileNotFoundError:
-        raise InputError(source, "", "file not found") from None
-    except IsADirectoryError:
-        raise InputError(source, "", "is a folder, expected a file of raw link bytes") from None
     except OSError as err:
-        raise InputError(source, "", f"cannot be read ({err.strerror})") from None
+        raise unreadable(source, err, "a file of raw link bytes") from None
     meta = dict(meta or {})
     meta.setdefault("link", "text" if text else "frames")
     meta.setdefault("extra", {})

@@ -6,10 +6,9 @@ and its capture, computes no physics.
 
 from __future__ import annotations
 
-import io
-
 import numpy as np
 
+from ..plot import agg_figure, png_bytes
 from .capture_file import Capture
 from .check import FAIL, CheckReport
 
@@ -17,12 +16,7 @@ from .check import FAIL, CheckReport
 def plot_check(report: CheckReport, capture: Capture, max_actuations: int = 5) -> bytes:
     """PNG bytes: every actuation (up to ``max_actuations``) aligned at its switch-on,
     over the model waveform at the check's operating point; failed figures in the title."""
-    import matplotlib
-
-    matplotlib.use("Agg")
-    from matplotlib.figure import Figure
-
-    fig = Figure(figsize=(9, 5), dpi=110)
+    fig = agg_figure(figsize=(9, 5), dpi=110)
     ax = fig.add_subplot(1, 1, 1)
     w = report.waveform
     if w is not None:
@@ -53,7 +47,4 @@ def plot_check(report: CheckReport, capture: Capture, max_actuations: int = 5) -
     ax.set_ylabel("coil current (sense) [A]")
     ax.grid(alpha=0.3)
     ax.legend(fontsize=7, loc="upper right")
-    fig.tight_layout()
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png")
-    return buf.getvalue()
+    return png_bytes(fig)

@@ -281,7 +281,35 @@ class DecoderStats:
         return self.crc_errors + self.malformed_frames + self.lost_frames
 
 
-class FrameDecoder:
+class SampleIndexAccount:
+    """Sample-index accounting of a decoder, shared by :class:`FrameDecoder` and
+    :class:`~coildrive.bench.textline.TextLineDecoder`: the index expected next
+    (``None`` before the first sample), the samples missing (forward jumps), the index
+    restarts (backward jumps) and the samples paused (PAUSE events), by the rule of
+    :func:`index_gap`. A decoder calls :meth:`_index_jump` when samples do not start at
+    the index expected next, then sets ``_next_index`` past them."""
+
+    def __init__(self) -> None:
+        self._next_index: int | None = None
+        self._samples_missing = 0
+        self._index_restarts = 0
+        self._samples_paused = 0
+
+    def _index_jump(self, index: int) -> None:
+        """The samples go on at ``index`` instead of at the index expected next."""
+        missing, restarts = index_gap(self._next_index, index)
+        self._samples_missing += missing
+        self._index_restarts += restarts
+
+    def _pause(self, index: int, value: int) -> None:
+        """A PAUSE event: no samples from ``index`` for ``value`` (> 0) samples."""
+        self._next_index, missing, restarts = account_pause(self._next_index, index, value)
+        self._samples_missing += missing
+        self._index_restarts += restarts
+        self._samples_paused += value
+
+
+class FrameDecoder(SampleIndexAccount):
     """Streaming decoder of binary frames: ``feed(bytes) -> list of messages``.
 
     It never raises on its input. Bytes are cut at every ``0x00``; each piece is one
@@ -306,12 +334,12 @@ class FrameDecoder:
     """
 
     def __init__(self) -> None:
+        super().__init__()
         self._pending = b""
         self._discarding = False   # inside a piece that grew past MAX_ENCODED
         self._discarded = 0        # bytes of that piece so far
         self._synced = False       # a delimiter has been seen
         self._last_seq: list[int | None] = [None, None]   # device->host, host->device
-        self._next_index: int | None = None
         self._bytes = 0
         self._frames = 0
         self._crc_errors = 0
@@ -321,10 +349,7 @@ class FrameDecoder:
         self._duplicates = 0
         self._restarts = 0
         self._samples = 0
-        self._samples_missing = 0
-        self._index_restarts = 0
         self._sync_bytes = 0
-        self._samples_paused = 0
 
     @property
     def stats(self) -> DecoderStats:
@@ -447,13 +472,8 @@ class FrameDecoder:
             first = raw[3] | raw[4] << 8 | raw[5] << 16 | raw[6] << 24
             codes = np.frombuffer(raw, dtype="<u2", count=count, offset=HEADER_SIZE + SAMPLES_HEADER)
             codes.flags.writeable = False
-            expected = self._next_index
-            if expected is not None and first != expected:
-                gap = (first - expected) & 0xFFFFFFFF
-                if gap < INDEX_HALF_RANGE:
-                    self._samples_missing += gap
-                else:
-                    self._index_restarts += 1
+            if first != self._next_index:
+                self._index_jump(first)
             self._next_index = (first + count) & 0xFFFFFFFF
             self._samples += count
             self._frames += 1
@@ -464,12 +484,6 @@ class FrameDecoder:
             return
         self._frames += 1
         out.append(message)
-
-    def _pause(self, index: int, value: int) -> None:
-        self._next_index, missing, restarts = account_pause(self._next_index, index, value)
-        self._samples_missing += missing
-        self._index_restarts += restarts
-        self._samples_paused += value
 
     def _other(self, frame_type: int, raw: bytearray, size: int, seq: int) -> Message | None:
         if frame_type == FrameType.EVENT:
@@ -502,6 +516,17 @@ class FrameDecoder:
         return None
 
 
+def index_gap(next_index: int | None, index: int) -> tuple[int, int]:
+    """``(samples missing, index restarts)`` when a receiver that expects ``next_index``
+    (``None`` before any sample) sees the stream go on at ``index``: with ``step = (index
+    - next_index) mod 2**32``, a forward step (below :data:`INDEX_HALF_RANGE`) lost the
+    ``step`` indices between, a backward one is a restart of the sender."""
+    if next_index is None or index == next_index:
+        return 0, 0
+    gap = (index - next_index) & 0xFFFFFFFF
+    return (gap, 0) if gap < INDEX_HALF_RANGE else (0, 1)
+
+
 def account_pause(next_index: int | None, index: int, value: int) -> tuple[int | None, int, int]:
     """Sample-index accounting of a PAUSE event (``value`` > 0 samples from ``index``).
 
@@ -510,13 +535,7 @@ def account_pause(next_index: int | None, index: int, value: int) -> tuple[int |
     between the expected one and the pause were lost (forward step), a backward step is a
     restart; the paused indices themselves are skipped without counting them missing.
     """
-    missing = restarts = 0
-    if next_index is not None and index != next_index:
-        gap = (index - next_index) & 0xFFFFFFFF
-        if gap < INDEX_HALF_RANGE:
-            missing = gap
-        else:
-            restarts = 1
+    missing, restarts = index_gap(next_index, index)
     return (index + value) & 0xFFFFFFFF, missing, restarts
 
 

@@ -32,7 +32,7 @@ from fractions import Fraction
 import numpy as np
 
 from .messages import Event, EventKind, Info, Message, Samples
-from .protocol import INDEX_HALF_RANGE, MAX_FIRMWARE_ID, DecoderStats, account_pause
+from .protocol import MAX_FIRMWARE_ID, DecoderStats, SampleIndexAccount
 
 MAX_LINE = 256
 """Longest line accepted, bytes (newline not counted)."""
@@ -42,7 +42,7 @@ _KINDS = {kind.name.lower().encode(): kind for kind in EventKind}
 _U32_MAX = 0xFFFFFFFF
 
 
-class TextLineDecoder:
+class TextLineDecoder(SampleIndexAccount):
     """Streaming decoder of the text line mode: ``feed(bytes) -> list of messages``.
 
     Consecutive sample lines with consecutive indices become one
@@ -53,16 +53,13 @@ class TextLineDecoder:
     """
 
     def __init__(self) -> None:
+        super().__init__()
         self._pending = b""
         self._discarding = False     # inside a line longer than MAX_LINE
-        self._next_index: int | None = None
         self._bytes = 0
         self._lines = 0
         self._malformed = 0
         self._samples = 0
-        self._samples_missing = 0
-        self._index_restarts = 0
-        self._samples_paused = 0
 
     @property
     def stats(self) -> DecoderStats:
@@ -147,23 +144,14 @@ class TextLineDecoder:
                 codes = []
             out.append(message)
             if isinstance(message, Event) and message.kind == EventKind.PAUSE and message.value > 0:
-                self._next_index, missing, restarts = account_pause(self._next_index, message.index,
-                                                                    message.value)
-                self._samples_missing += missing
-                self._index_restarts += restarts
-                self._samples_paused += message.value
+                self._pause(message.index, message.value)
         if codes:
             out.append(self._samples_message(first, codes))
         return out
 
     def _samples_message(self, first: int, codes: list[int]) -> Samples:
-        expected = self._next_index
-        if expected is not None and first != expected:
-            gap = (first - expected) & _U32_MAX
-            if gap < INDEX_HALF_RANGE:
-                self._samples_missing += gap
-            else:
-                self._index_restarts += 1
+        if first != self._next_index:
+            self._index_jump(first)
         self._next_index = (first + len(codes)) & _U32_MAX
         self._samples += len(codes)
         array = np.array(codes, dtype="<u2")

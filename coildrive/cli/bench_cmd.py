@@ -56,6 +56,8 @@ def _print_check(report, console=None) -> None:
     from rich.markup import escape
     from rich.table import Table
 
+    from ..report import print_cautions, print_verdict
+
     console = console or Console()
     p = report.point
     t = Table(title=f"coildrive check: {report.capture_source} against {report.drive_name} on {report.board_name}")
@@ -73,13 +75,8 @@ def _print_check(report, console=None) -> None:
     console.print(t)
     for note in report.notes:
         console.print(f"  note: {escape(note)}")
-    console.print("[bold]Cautions[/bold]")
-    for c in report.cautions:
-        console.print(f"  ! {escape(c)}")
-    if report.ok:
-        console.print("[green]check passed[/green]")
-    else:
-        console.print("[bold red]check FAILED[/bold red]: " + ", ".join(i.name for i in report.failed))
+    print_cautions(console, report.cautions)
+    print_verdict(console, report.ok, "check passed", "check FAILED", [i.name for i in report.failed])
 
 
 @user_errors
@@ -90,7 +87,7 @@ def check_command(
     supply: Optional[str] = typer.Option(None, "--supply", help='Bus voltage during the capture, e.g. 24 or "24 V" (default: the capture\'s, else the nominal supply).'),
     coil_temp: Optional[str] = typer.Option(None, "--coil-temp", help='Coil temperature during the capture, e.g. 25 or "25 degC" (default: the capture\'s, else the coil\'s reference temperature).'),
     tol_pull_in: Optional[str] = typer.Option(None, "--tol-pull-in", help="Tolerance on the pull-in time (default 0.15 = 15 %)."),
-    tol_seated: Optional[str] = typer.Option(None, "--tol-seated", help="Tolerance on the seat time, with [armature] (default 0.20)."),
+    tol_seated: Optional[str] = typer.Option(None, "--tol-seated", help="Tolerance on the seat time, with \\[armature] (default 0.20)."),
     tol_peak: Optional[str] = typer.Option(None, "--tol-peak", help="Tolerance on the peak duration (default 0.05)."),
     tol_hold_mean: Optional[str] = typer.Option(None, "--tol-hold-mean", help="Tolerance on the hold mean current (default 0.10)."),
     tol_ripple: Optional[str] = typer.Option(None, "--tol-ripple", help="Tolerance on the hold ripple (default 0.30)."),
@@ -138,7 +135,7 @@ def fit_command(
     coil_temp: Optional[str] = typer.Option(None, "--coil-temp", help='Coil temperature during the capture (default: the capture\'s, else 20 degC, flagged).'),
     as_json: bool = typer.Option(False, "--json", help="Print the fit as one JSON document on stdout."),
 ) -> None:
-    """Fit the coil's R and L from the rise before the armature moves; print a [coil] section."""
+    """Fit the coil's R and L from the rise before the armature moves; print a \\[coil] section."""
     from ..bench.analysis import analyse
     from ..bench.capture_file import read_capture
     from ..bench.check import prepare_capture

@@ -56,7 +56,7 @@ def tune_command(
     min_steps: int = typer.Option(64, "--min-steps", help="Fewest compare steps per PWM period."),
     top: int = typer.Option(20, "--top", help="Candidates shown and listed in the JSON."),
     port: Optional[str] = typer.Option(None, "--port", help="Tune live on the bench: the device's serial port (a path or a pyserial URL)."),
-    baud: Optional[int] = typer.Option(None, "--baud", help="With --port: line rate (default: the board's [link] baud)."),
+    baud: Optional[int] = typer.Option(None, "--baud", help="With --port: line rate (default: the board's \\[link] baud)."),
     capture: Optional[Path] = typer.Option(None, "--capture", help="With --port: capture file (default: tune-DRIVE-UTCTIME.cdcap here; the log beside it, .tune.json)."),
     repeats: Optional[int] = typer.Option(None, "--repeats", help="With --port: searches for the spread (default 3)."),
     supply: Optional[str] = typer.Option(None, "--supply", help='With --port: bench bus voltage (default: the device\'s SUPPLY events, else the nominal supply).'),

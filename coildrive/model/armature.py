@@ -494,16 +494,8 @@ class OnePoint:
         self.scale = tuple(float(a) for a in s)
 
 
-def _hermite1(y0, y1, d0, d1, h, theta):
-    """:func:`_hermite` of one float (the same expression)."""
-    t2 = theta * theta
-    t3 = t2 * theta
-    return ((2 * t3 - 3 * t2 + 1) * y0 + (t3 - 2 * t2 + theta) * h * d0
-            + (-2 * t3 + 3 * t2) * y1 + (t3 - t2) * h * d1)
-
-
 def _hermite5(y0, y1, d0, d1, h, theta):
-    """:func:`_hermite1` of a state of 5 floats, the weights computed once (the same
+    """:func:`_hermite` of a state of 5 floats, the weights computed once (the same
     roundings: each weight is the same expression on the same numbers)."""
     t2 = theta * theta
     t3 = t2 * theta
@@ -523,7 +515,7 @@ def _root1(g0, g1, d0, d1, h, iterations: int = 40):
     lo, hi = 0.0, 1.0
     for _ in range(iterations):
         mid = 0.5 * (lo + hi)
-        if _hermite1(g0, g1, d0, d1, h, mid) > 0.0:
+        if _hermite(g0, g1, d0, d1, h, mid) > 0.0:
             lo = mid
         else:
             hi = mid

@@ -95,11 +95,7 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
     ts, cs, ons = [], [], []
 
     # Peak: full on from zero.
-    tp = np.linspace(0.0, peak_time, big + 1)
-    ts.append(tp)
-    cs.append(rise_current(tp, 0.0, v, r_on, ind))
-    ons.append(np.ones_like(tp))
-    i0 = float(cs[-1][-1])
+    i0 = peak_samples(peak_time, v, r_on, ind, big, ts, cs, ons)
 
     # Hold: per-period start currents by scalar recurrence, then vectorised sampling.
     t_hold, i_hold, on_hold, t_offedge, i_off, _ = hold_samples(
@@ -109,17 +105,38 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
     ons.append(on_hold)
 
     # Release: decay to zero.
+    return release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_offedge, i_off, big, label)
+
+
+def peak_samples(peak_time: float, v: float, r_on: float, ind: float, big: int,
+                 ts: list, cs: list, ons: list) -> float:
+    """Append the peak phase -- full on from zero current for ``peak_time`` s, ``big`` + 1
+    samples, through the on-loop ``v`` V, ``r_on`` ohm, ``ind`` H -- to the sample pieces
+    ``ts``/``cs``/``ons`` (s, A, 0/1); returns the current at its end, A."""
+    tp = np.linspace(0.0, peak_time, big + 1)
+    ts.append(tp)
+    cs.append(rise_current(tp, 0.0, v, r_on, ind))
+    ons.append(np.ones_like(tp))
+    return float(cs[-1][-1])
+
+
+def release_waveform(drive: Drive, lp, supply: float, ts: list, cs: list, ons: list,
+                     peak_time: float, t_off: float, i_off: float, big: int, label: str) -> Waveform:
+    """Close an actuation without split decay: append the free decay from ``i_off`` A at
+    the final turn-off ``t_off`` s down to zero through the off path of ``lp`` (``big``
+    samples) to the sample pieces ``ts``/``cs``/``ons`` (s, A, 0/1), and make the
+    :class:`Waveform` of them (switch-on at 0 s, the hold from ``peak_time`` s)."""
+    r_off, v_off, ind = (float(x) for x in (lp.r_off, lp.v_off, lp.inductance))
     tz = float(decay_time(0.0, i_off, r_off, v_off, ind))
     td = np.linspace(0.0, tz, big + 1)[1:]
-    ts.append(t_offedge + td)
+    ts.append(t_off + td)
     cs.append(decay_current(td, i_off, r_off, v_off, ind))
     ons.append(np.zeros_like(td))
-
     time = np.concatenate(ts)
     current = np.concatenate(cs)
     on = np.concatenate(ons).astype(np.int8)
     v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
-    events = {"on": 0.0, "hold": peak_time, "off": t_offedge, "zero": t_offedge + tz}
+    events = {"on": 0.0, "hold": peak_time, "off": t_off, "zero": t_off + tz}
     return Waveform(time, current, on, v_sw, sense, events, label)
 
 
@@ -131,13 +148,15 @@ def _split_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_tim
     fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
     v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
     big = 40 * points
-    tp = np.linspace(0.0, peak_time, big + 1)
-    ip = rise_current(tp, 0.0, v, r_on, ind)
+    ts, cs, ons = [], [], []
+    i0 = peak_samples(peak_time, v, r_on, ind, big, ts, cs, ons)
     t_hold, i_hold, on_hold, t_cut, i_cut, starts = hold_samples(
-        peak_time, float(ip[-1]), v, r_on, r_off, v_off, ind, duty, frequency, hold_time, points)
+        peak_time, i0, v, r_on, r_off, v_off, ind, duty, frequency, hold_time, points)
     period = 1.0 / frequency
     t_last = t_cut - duty * period  # start of the last on-time
-    ts, cs, ons = [tp, t_hold], [ip, i_hold], [np.ones_like(tp), on_hold]
+    ts.append(t_hold)
+    cs.append(i_hold)
+    ons.append(on_hold)
     t_open, zero = split_release(drive, lp, fast, t_cut, i_cut, t_last, float(starts[-1]), t_hold,
                                  big, ts, cs, ons)
     return split_waveform(drive, lp, fast, supply, ts, cs, ons, t_open,
