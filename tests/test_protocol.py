@@ -16,6 +16,8 @@ import struct
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from coildrive.bench import (CobsError, Command, Event, EventKind, FrameDecoder, FrameEncoder,
                              FrameType, Info, Opcode, Reply, ReplyStatus, Samples, cobs_decode,
@@ -107,6 +109,37 @@ def test_cobs_round_trip_and_size_bound():
             assert len(enc) <= cobs_encoded_size(n)
             if zero_share == 0.0:
                 assert len(enc) == cobs_encoded_size(n), "the bound is met without zeros"
+
+
+def reference_cobs_decode(enc: bytes) -> bytes | None:
+    """COBS decoding block by block, straight from the rules of Cheshire & Baker (1999):
+    a code byte ``c`` is followed by ``c - 1`` data bytes and, unless ``c`` is 0xFF or the
+    frame ends there, by a zero. ``None`` for a zero byte, no bytes, or a block past the end."""
+    if not enc or 0 in enc:
+        return None
+    out = bytearray()
+    i = 0
+    while i < len(enc):
+        code = enc[i]
+        if i + code > len(enc):
+            return None
+        out += enc[i + 1:i + code]
+        i += code
+        if code != 0xFF and i < len(enc):
+            out.append(0)
+    return bytes(out)
+
+
+@settings(max_examples=400, deadline=None)
+@given(st.lists(st.sampled_from([1, 1, 1, 2, 3, 0xFE, 0xFF, 7, 0x80]), min_size=1, max_size=600))
+def test_cobs_decoder_equals_the_block_rules_on_code_rich_input(codes):
+    # Runs of 0x01 codes (zero-rich data: idle ADC codes) take the decoder's fast path;
+    # valid and invalid inputs must decode exactly as the paper's rules say.
+    from coildrive.bench.framing import cobs_decode_or_none
+
+    enc = bytes(codes)
+    got = cobs_decode_or_none(enc)
+    assert (None if got is None else bytes(got)) == reference_cobs_decode(enc)
 
 
 # --------------------------------------------------------------------------- layout

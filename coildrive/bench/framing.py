@@ -24,6 +24,7 @@ b'\\x11\\x00"'
 from __future__ import annotations
 
 import binascii
+import re
 
 CRC_INIT = 0xFFFF
 """Initial register value of CRC-16/CCITT-FALSE."""
@@ -36,6 +37,10 @@ CRC_CHECK = 0x29B1
 
 MAX_BLOCK = 254
 """Most data bytes one COBS block carries (code ``0xFF``)."""
+
+
+_ONES = re.compile(b"\x01+")
+_ZEROS = bytes(1 << 16)
 
 
 class CobsError(ValueError):
@@ -124,9 +129,16 @@ def cobs_decode_or_none(data: bytes) -> bytearray | None:
     out = bytearray(data)
     i = 0
     if 0xFF not in data:
-        # No 0xFF byte at all, so no 0xFF code: the tight loop.
+        # No 0xFF byte at all, so no 0xFF code: the tight loop. A run of 0x01 codes (a
+        # run of zeros in the data: idle ADC codes) is all code bytes, cleared in one
+        # slice found by a regular expression (C speed) instead of one step per byte.
         while i < n:
             code = out[i]
+            if code == 1:
+                end = _ONES.match(data, i).end()
+                out[i:end] = _ZEROS[:end - i]
+                i = end
+                continue
             out[i] = 0
             i += code
         if i != n:
@@ -136,6 +148,11 @@ def cobs_decode_or_none(data: bytes) -> bytearray | None:
     after_full: list[int] = []
     while i < n:
         code = out[i]
+        if code == 1:
+            end = _ONES.match(data, i).end()
+            out[i:end] = _ZEROS[:end - i]
+            i = end
+            continue
         out[i] = 0
         i += code
         if code == 0xFF:
