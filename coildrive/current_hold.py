@@ -554,7 +554,7 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
 
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
     v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
-    a, b = v / r_on, v_off / r_off
+    a = v / r_on  # the current the on-time rises toward, A
     hyst = th.control == "hysteretic"
     upper, lower, d = th.upper_a, th.lower_a, th.delay_s
     big = 40 * points

@@ -606,12 +606,13 @@ def _path_name(drive: Drive, hold: bool) -> str:
 def _loss_figures(drive: Drive, grid: CornerGrid, loss: HoldLosses) -> dict:
     """The worst-corner hold powers as :class:`HoldResult` fields."""
     k_fw = _worst(loss.freewheel)
-    k_sw = _worst(np.broadcast_to(loss.switch, loss.freewheel.shape))
+    switch = np.broadcast_to(loss.switch, loss.freewheel.shape)
+    k_sw = _worst(switch)
     elements = {name: float(np.max(p)) for name, p in loss.elements().items() if np.any(p > 0)}
     return dict(
         freewheel_power_w=float(loss.freewheel[k_fw]), freewheel_power_corner=grid.label(k_fw),
         freewheel_elements_w=elements,
-        switch_power_w=float(np.broadcast_to(loss.switch, loss.freewheel.shape)[k_sw]),
+        switch_power_w=float(switch[k_sw]),
         switch_conduction_w=float(np.max(loss.switch_conduction)),
         switch_switching_w=float(np.max(loss.switch_switching)),
         switch_power_corner=grid.label(k_sw), decay_path=_path_name(drive, hold=True),

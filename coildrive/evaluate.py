@@ -116,8 +116,8 @@ class ArmatureFigures:
     release_from: np.ndarray
 
 
-def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, frequency,
-                      peak_time, reuse: "ArmatureFigures | None" = None,
+def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak_time,
+                      reuse: "ArmatureFigures | None" = None,
                       lp_rel: Loop | None = None) -> ArmatureFigures:
     """The armature runs at the points: pull-in and hold on the hold's loop ``lp``, the
     release on ``lp_rel`` (the fast path of split decay; ``None`` or ``lp``: the same
@@ -193,7 +193,7 @@ def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
     t_drop, t_zero, energy, i_fast = release_figures(drive, lp, lp_rel, i_off)
     arm = None
     if drive.armature is not None and mechanics:
-        arm = _armature_figures(drive, lp, l_factor, ss, frequency, peak_time,
+        arm = _armature_figures(drive, lp, l_factor, ss, peak_time,
                                 None if reuse is None else reuse.armature, lp_rel)
         shape = np.shape(supply)
         t_pull = arm.pull_in.seat_time.reshape(shape)

@@ -31,7 +31,7 @@ from .config import Drive, Hold, Timer
 from .corners import CornerGrid, corner_grid
 from .errors import InputError
 from .jsondoc import json_ready
-from .model.circuit import COPPER_ALPHA, loop
+from .model.circuit import COPPER_ALPHA, copper_resistance, loop
 from .model.losses import hold_losses
 from .model.pwm import duty_for_mean, pwm_steady_state
 from .timer import MIN_PERIOD_TICKS, solve_timer
@@ -169,6 +169,11 @@ def realisable_frequencies(timer: Timer, low: float, high: float):
 
 
 # --------------------------------------------------------------------------- physics
+def _coil_r20(drive: Drive, r_factor):
+    """Coil resistance (ohm) at 20 degC, times the corner's ``r_factor``: ``rho`` below."""
+    return r_factor * copper_resistance(drive.coil.resistance, drive.coil.reference_temp, 20.0)
+
+
 def closed_form_temperature(drive: Drive, ambient, r_factor, rms):
     """Coil temperature (degC) for a coil carrying ``rms`` A that does not depend on T.
 
@@ -177,7 +182,7 @@ def closed_form_temperature(drive: Drive, ambient, r_factor, rms):
     ``rho = r_factor R_ref / (1 + a (T_ref - 20))``; ``inf`` where ``k a >= 1`` (runaway).
     """
     a = COPPER_ALPHA
-    rho = r_factor * drive.coil.resistance / (1.0 + a * (drive.coil.reference_temp - 20.0))
+    rho = _coil_r20(drive, r_factor)
     k = drive.thermal.resistance * rms * rms * rho
     den = 1.0 - k * a
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -198,7 +203,7 @@ def _temp_guess(drive: Drive, supply, ambient, r_factor, duty):
     r_th = drive.thermal.resistance
     a = COPPER_ALPHA
     fw = drive.freewheel
-    rho = r_factor * (drive.coil.resistance / (1.0 + a * (drive.coil.reference_temp - 20.0)))
+    rho = _coil_r20(drive, r_factor)
     extra_on = drive.switch.on_resistance + drive.board.sense.resistance
     extra_off = (drive.board.sense.resistance if drive.board.sense.position == "coil" else 0.0) + fw.resistance
     # The fast path's off-voltage even with split decay: only a first guess, which the
@@ -232,7 +237,7 @@ def settle_voltage_mode(drive: Drive, supply, ambient, r_factor, l_factor, duty,
     """
     r_th = drive.thermal.resistance
     a = COPPER_ALPHA
-    dr_dt = r_factor * drive.coil.resistance * a / (1.0 + a * (drive.coil.reference_temp - 20.0))
+    dr_dt = _coil_r20(drive, r_factor) * a
     temp = _temp_guess(drive, supply, ambient, r_factor, duty) if r_th > 0 else np.array(ambient, float)
     done = np.zeros(temp.shape, bool)
     bad = np.zeros(temp.shape, bool)

@@ -1078,6 +1078,15 @@ class LiveTuner:
                             dropout_duty=float(estimate), dropout_current_a=float(current),
                             equivalent_current_a=eq, current_basis=basis, actuations=count)
 
+    def _model_at_bench(self) -> None:
+        """The bench point from the options and the device's events so far, and the model's
+        drop-out current (A) and duty there."""
+        res, o = self.result, self.options
+        res.point = bench_point(self.drive, o.supply, o.coil_temp, self._supply_codes or None,
+                                self._info.adc_bits, self._temperatures or None)
+        res.model_dropout_current_a = model_stay_current(self.drive, res.point)
+        res.model_dropout_duty = model_dropout_duty(self.drive, res.point, self._frequency)
+
     def run(self) -> LiveResult:
         """Run the procedure (see the module docstring); STOP on every exit."""
         from .bench.link import LinkError
@@ -1091,8 +1100,7 @@ class LiveTuner:
         try:
             try:
                 self._setup()
-                res.point = bench_point(self.drive, o.supply, o.coil_temp, self._supply_codes or None,
-                                        self._info.adc_bits, self._temperatures or None)
+                self._model_at_bench()
                 d0 = float(des.hold.duty)
                 res.floor_duty = o.floor * d0
                 res.resolution_duty = max(o.resolution * d0, 1.0 / des.timer.period_ticks)
@@ -1106,8 +1114,6 @@ class LiveTuner:
                                                   if res.detection == "signature" else ""))
                 hf = hold_figures(self.drive, res.point, d0, self._frequency)
                 self._ripple = float(hf.ripple_a[0])
-                res.model_dropout_current_a = model_stay_current(self.drive, res.point)
-                res.model_dropout_duty = model_dropout_duty(self.drive, res.point, self._frequency)
                 coarse = max(1, math.ceil((d0 - res.model_dropout_duty) / (o.coarse_step * d0))) \
                     if math.isfinite(res.model_dropout_duty) else 3
                 bisect = max(0, math.ceil(math.log2(o.coarse_step / o.resolution)))
@@ -1120,10 +1126,7 @@ class LiveTuner:
                                       "hold.current; the device was stopped")
                 self._bump_expected = first.judgement.release_bump_a is not None
                 if (o.supply is None and self._supply_codes) or (o.coil_temp is None and self._temperatures):
-                    res.point = bench_point(self.drive, o.supply, o.coil_temp, self._supply_codes or None,
-                                            self._info.adc_bits, self._temperatures or None)
-                    res.model_dropout_current_a = model_stay_current(self.drive, res.point)
-                    res.model_dropout_duty = model_dropout_duty(self.drive, res.point, self._frequency)
+                    self._model_at_bench()  # again, with the device's events of the first actuation
                 if res.detection == "signature" and not self._bump_expected:
                     res.notes.append("the design-duty actuation shows no release bump: drop-out is judged from "
                                      "the hold current's rise alone")

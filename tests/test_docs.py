@@ -1,5 +1,6 @@
 """The docs say what the code does: README commands, CI script and file-format keys."""
 
+import functools
 import os
 import re
 
@@ -34,9 +35,11 @@ def test_every_drive_key_is_documented():
             assert re.search(rf"^{f.name} = ", doc, re.M), f"{cls.__name__}.{f.name} not in docs/file-formats.md"
 
 
+@functools.lru_cache(maxsize=None)  # each page parsed once, however many links point at it
 def _github_anchors(path):
     """The #anchors GitHub gives the headings of a Markdown file (lower case, punctuation
-    dropped, spaces to hyphens, -1, -2 ... for repeats); code blocks are not headings."""
+    dropped, spaces to hyphens, -1, -2 ... for repeats; GitHub's rule from memory, no spec
+    cited); code blocks are not headings."""
     text = re.sub(r"```.*?```", "", path.read_text(), flags=re.S)
     seen, anchors = {}, set()
     for heading in re.findall(r"^#{1,6}\s+(.+?)\s*#*\s*$", text, re.M):

@@ -64,7 +64,7 @@ def test_pasted_hold_section_reproduces_the_recommendation(tmp_path, tuned):
     assert d["hold"]["ripple_a"] == pytest.approx(rec["ripple_a"], rel=2e-6)
 
 
-def test_table_header_and_plot(tmp_path):
+def test_table_header_and_plot(tmp_path, tuned):
     require_tool("gcc")
     header, plot = tmp_path / "tuned.h", tmp_path / "tuned.png"
     r = run_cli("tune", str(DEMO), *NARROW, "--header", str(header), "--plot", str(plot),
@@ -87,7 +87,7 @@ def test_table_header_and_plot(tmp_path):
     assert cc.returncode == 0, cc.stderr
     compare, period = map(int, subprocess.run([str(exe)], capture_output=True, text=True,
                                               check=True).stdout.split())
-    j = json.loads(run_cli("tune", str(DEMO), *NARROW, "--json").stdout)["recommendation"]
+    j = tuned["recommendation"]  # the same options with --json
     assert (compare, period) == (j["compare_ticks"], j["period_ticks"]) and m
 
 

@@ -8,8 +8,10 @@ The reference for the drop-out duty is the force balance of the seated armature,
 by hand here from the drive file's numbers (not through the code under test):
 
 * magnetic equivalent circuit ``L(x) = L_c / (1 + beta x)`` through the two measured
-  inductances, so ``|dL/dx|(0) = L_c beta`` with ``beta = (L_c - L_o) / (stroke L_o)``;
-* co-energy force ``F = (I^2 / 2) |dL/dx|`` against spring + load at the seat
+  inductances, so ``|dL/dx|(0) = L_c beta`` with ``beta = (L_c - L_o) / (stroke L_o)``
+  (air-gap reluctance linear in the gap: common practice);
+* co-energy force ``F = (I^2 / 2) |dL/dx|`` (Fitzgerald, Kingsley & Umans, "Electric
+  Machinery", electromechanical energy conversion chapter; from memory) against spring + load at the seat
   (``preload + rate stroke + load``) gives the stay (drop-out) current
   ``I_s = sqrt(2 (preload + rate stroke + load) / (L_c beta))``;
 * the armature's mass averages a 25 kHz ripple, so the hold's force goes with the RMS

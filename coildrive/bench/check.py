@@ -146,6 +146,12 @@ BENCH_CAUTIONS = (
 
 
 # --------------------------------------------------------------------------- inputs
+def board_amps_per_code(board: Board) -> float:
+    """Current in A of one code of the board's current-sense ADC channel: one ADC step
+    in volts at the pin (``reference / 2**bits``) over the sense transresistance in V/A."""
+    return board.adc.reference / 2**board.adc.bits / (board.sense.resistance * board.sense.gain)
+
+
 def prepare_capture(capture: Capture, board: Board) -> Capture:
     """Fill what the capture does not say (sample rate, ADC bits, A per code, sense
     position, board name) from the board file; what the capture says is kept."""
@@ -156,8 +162,7 @@ def prepare_capture(capture: Capture, board: Board) -> Capture:
     if meta.adc_bits is None:
         changes["adc_bits"] = board.adc.bits
     if meta.amps_per_code is None:
-        vpa = board.sense.resistance * board.sense.gain
-        changes["amps_per_code"] = board.adc.reference / 2**board.adc.bits / vpa
+        changes["amps_per_code"] = board_amps_per_code(board)
     if meta.sense_position is None:
         changes["sense_position"] = board.sense.position
     if meta.board is None:
@@ -282,7 +287,7 @@ def _row(name: str, unit: str, values: list, predicted: float | None, tol: float
         status, detail = FAIL, f"outside the band in actuation(s) {_list(bad)}"
     else:
         status, detail = PASS, f"all {len(present)} within +/-{tol:.0%}" + (
-            f" (band widened to the resolution)" if half > abs(predicted) * tol else "")
+            " (band widened to the resolution)" if half > abs(predicted) * tol else "")
     return CheckItem(name, status, worst, predicted, low, high, unit, detail + extra, tuple(values))
 
 

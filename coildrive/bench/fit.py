@@ -59,10 +59,9 @@ class CoilFit:
     """The coil as the capture shows it. SI units, temperatures in degC.
 
     ``resistance_ohm`` is the coil alone (the loop less the board's switch and sense
-    resistances) at ``coil_temp_c``; ``resistance_ref_ohm`` is the same referred to
-    ``reference_temp_c`` by copper's temperature coefficient (IEC 60028), which equals
-    ``coil_temp_c`` unless the caller asks for another reference. Spreads are the
-    relative half-ranges over the actuations.
+    resistances) at ``coil_temp_c`` (the ``[coil]`` section states it with
+    ``reference_temp`` = ``coil_temp_c``). Spreads are the relative half-ranges over the
+    actuations.
     """
 
     resistance_ohm: float

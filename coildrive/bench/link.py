@@ -76,7 +76,6 @@ WRITE_TIMEOUT_S = 2.0
 SNIFF_BYTES = 4096
 """First bytes of a link kept for :func:`guess_mode` (the hint)."""
 
-_PAUSE = 9          # EventKind.PAUSE: the device stops sending idle samples
 _IDLE_SAMPLES = 256  # samples before an ON that tell the idle level
 
 
@@ -248,7 +247,7 @@ class _Pipeline:
                         self._tail_from = m.index
                         self._tail_wall = time.monotonic()
                         self._quiet_run = 0
-            elif m.kind == _PAUSE and self._tail_from is not None:
+            elif m.kind == EventKind.PAUSE and self._tail_from is not None:
                 self.done = True           # idle from here: the release is over
             elif m.kind == EventKind.SUPPLY and self._supply_vpc:
                 self._supply_codes.append(m.value)

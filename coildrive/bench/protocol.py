@@ -303,9 +303,8 @@ class SampleIndexAccount:
 
     def _pause(self, index: int, value: int) -> None:
         """A PAUSE event: no samples from ``index`` for ``value`` (> 0) samples."""
-        self._next_index, missing, restarts = account_pause(self._next_index, index, value)
-        self._samples_missing += missing
-        self._index_restarts += restarts
+        self._index_jump(index)
+        self._next_index = (index + value) & 0xFFFFFFFF
         self._samples_paused += value
 
 
@@ -525,18 +524,6 @@ def index_gap(next_index: int | None, index: int) -> tuple[int, int]:
         return 0, 0
     gap = (index - next_index) & 0xFFFFFFFF
     return (gap, 0) if gap < INDEX_HALF_RANGE else (0, 1)
-
-
-def account_pause(next_index: int | None, index: int, value: int) -> tuple[int | None, int, int]:
-    """Sample-index accounting of a PAUSE event (``value`` > 0 samples from ``index``).
-
-    ``next_index`` is the index the receiver expects next (``None`` before any). Returns
-    ``(next_index after the pause, samples missing before it, index restarts)``: indices
-    between the expected one and the pause were lost (forward step), a backward step is a
-    restart; the paused indices themselves are skipped without counting them missing.
-    """
-    missing, restarts = index_gap(next_index, index)
-    return (index + value) & 0xFFFFFFFF, missing, restarts
 
 
 def _known(enum: type[IntEnum], value: int) -> int:

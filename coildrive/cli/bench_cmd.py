@@ -120,8 +120,7 @@ def check_command(
         _print_check(report)
     if plot is not None:
         from ..bench.plot import plot_check
-        from ..bench.check import prepare_capture
-        write_atomic(plot, plot_check(report, prepare_capture(cap, result.drive.board)))
+        write_atomic(plot, plot_check(report, cap))
         status(f"wrote plot {plot}")
     if not report.ok:
         raise typer.Exit(1)

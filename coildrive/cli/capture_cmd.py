@@ -62,7 +62,8 @@ def _board_and_drive(board: Optional[str], drive: Optional[Path]):
 def _header_meta(brd, drv, drive_path: Optional[Path], port: Optional[str], baud: int | None,
                  supply_v: float | None, coil_temp_c: float | None) -> dict:
     """Header fields known before the device speaks (its INFO frame overrides them)."""
-    vpa = brd.sense.resistance * brd.sense.gain
+    from ..bench.check import board_amps_per_code
+
     extra: dict = {}
     if port is not None:
         extra["port"] = port
@@ -71,7 +72,7 @@ def _header_meta(brd, drv, drive_path: Optional[Path], port: Optional[str], baud
     if drive_path is not None:
         extra["drive_file"] = str(drive_path)
     meta = {"board": brd.name, "sample_rate_hz": float(brd.adc.sample_rate), "adc_bits": brd.adc.bits,
-            "amps_per_code": brd.adc.reference / 2**brd.adc.bits / vpa,
+            "amps_per_code": board_amps_per_code(brd),
             "sense_position": brd.sense.position, "extra": extra}
     if drv is not None:
         meta["drive"] = drv.name

@@ -211,8 +211,7 @@ def _live(drive: Path, board: Optional[str], port: str, as_json: bool, header: O
     if as_json:
         typer.echo(json.dumps(doc, indent=2))
     else:
-        from rich.console import Console as _Console
-        print_live(result, _Console())
+        print_live(result, Console())
     if result.failure is not None:
         code, message = result.failure
         status(f"coildrive tune: {message}")

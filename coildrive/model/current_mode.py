@@ -44,8 +44,6 @@ import numpy as np
 from .pwm import PwmSteadyState
 from .rl import decay_integrals, decay_time, rise_integrals, rise_time
 
-CONTROLS = ("hysteretic", "off_time")
-
 
 @dataclass(frozen=True)
 class CurrentModeSteadyState:
