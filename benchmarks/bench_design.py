@@ -26,11 +26,11 @@ ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
 from coildrive.config import load_drive  # noqa: E402
-from coildrive.corners import corner_grid  # noqa: E402
+from coildrive.design.corners import corner_grid  # noqa: E402
 from coildrive.design import design  # noqa: E402
-from coildrive.evaluate import evaluate  # noqa: E402
+from coildrive.design.evaluate import evaluate  # noqa: E402
 from coildrive.model.circuit import loop  # noqa: E402
-from coildrive.montecarlo import monte_carlo  # noqa: E402
+from coildrive.design.montecarlo import monte_carlo  # noqa: E402
 
 
 def ivp_point(v, r_on, r_off, v_off, ind, i_pull, duty, freq, rel=1e-10):

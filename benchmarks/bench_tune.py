@@ -25,7 +25,7 @@ sys.path.insert(0, str(ROOT))
 
 from coildrive.config import load_drive  # noqa: E402
 from coildrive.model.pwm import duty_for_mean, duty_for_mean_bisect, pwm_steady_state  # noqa: E402
-from coildrive.tune import TuneOptions, tune  # noqa: E402
+from coildrive.tune.sweep import TuneOptions, tune  # noqa: E402
 
 TARGET_S = 1.0
 

@@ -107,8 +107,8 @@ def test_example_passes_on_its_board(latch_design):
 def test_corner_figures_match_the_scipy_reference(latch_design):
     """Every corner's seat time, dip and open time against solve_ivp (DOP853), one point
     at a time."""
-    from coildrive.evaluate import evaluate
-    from coildrive.corners import corner_grid
+    from coildrive.design.evaluate import evaluate
+    from coildrive.design.corners import corner_grid
 
     d = latch_design
     grid = corner_grid(d.drive)

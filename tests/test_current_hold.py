@@ -21,8 +21,8 @@ import numpy as np
 import pytest
 
 from coildrive.config import load_drive
-from coildrive.corners import corner_grid
-from coildrive.current_hold import lsb_current, settle
+from coildrive.design.corners import corner_grid
+from coildrive.design.hold_current import lsb_current, settle
 from coildrive.design import design
 from coildrive.errors import InputError
 from conftest import BOARDS, EXAMPLES, require_tool, run_cli
@@ -134,7 +134,7 @@ def test_hysteretic_design_figures_against_the_formula(hysteretic):
 def test_lower_code_is_the_smallest_that_holds(hysteretic):
     drive, _ = hysteretic
     dz = design(drive)
-    cm = dz.extra["current_mode"]
+    cm = dz.hold.current_mode
     grid = corner_grid(drive)
     lsb = lsb_current(drive)
     band = cm.band_codes
@@ -233,7 +233,7 @@ def test_simulate_current_mode_stays_in_the_band(tmp_path):
     t, i = a[:, 0], a[:, 1]
     assert np.all(np.diff(t) > 0), "time strictly increasing"
     d = design(load_drive(path))
-    cm = d.extra["current_mode"]
+    cm = d.hold.current_mode
     hold = (t > d.pull_in.peak_time_s + 1.5e-3) & (t < d.pull_in.peak_time_s + 2.9e-3)
     assert np.all(i[hold] >= cm.lower_a * (1 - 1e-9)) and np.all(i[hold] <= cm.upper_a * (1 + 1e-9))
     assert i[hold].min() == pytest.approx(cm.lower_a, rel=1e-6) and i[hold].max() == pytest.approx(cm.upper_a, rel=1e-6)

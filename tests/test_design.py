@@ -28,9 +28,9 @@ import pytest
 from circuit_reference import (CASE_IDS, CASES, Parts, iec60028_resistance, parts,
                                reference_drive, write_board, write_drive)
 from coildrive.config import load_board, load_drive
-from coildrive.corners import corner_grid
+from coildrive.design.corners import corner_grid
 from coildrive.design import design
-from coildrive.evaluate import evaluate
+from coildrive.design.evaluate import evaluate
 from coildrive.model.pwm import pwm_steady_state
 from coildrive.resources import bundled_boards, example
 

@@ -20,7 +20,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from coildrive.config import load_drive
-from coildrive.evaluate import evaluate
+from coildrive.design.evaluate import evaluate
 from coildrive.model.pwm import duty_for_mean, pwm_steady_state
 from coildrive.model.rl import decay_time, rise_time
 from coildrive.resources import example

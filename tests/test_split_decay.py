@@ -28,7 +28,7 @@ from typer.testing import CliRunner
 
 from circuit_reference import parts
 from coildrive.config import load_drive
-from coildrive.corners import corner_grid
+from coildrive.design.corners import corner_grid
 from coildrive.design import design
 from coildrive.model.circuit import loop
 from coildrive.model.losses import hold_losses
@@ -459,7 +459,7 @@ def test_split_decay_hold_and_release_match_ngspice(tmp_path):
     the slow loop, the release after the bypass opens the fast one."""
     from test_reference_ngspice import EDGE, G_OFF, G_OFF_SWITCH, OPTIONS, R_BLEED, _knee, _run
 
-    from coildrive.evaluate import release_figures
+    from coildrive.design.evaluate import release_figures
 
     drive = load_drive(SPLIT)
     fw = drive.freewheel

@@ -37,10 +37,10 @@ from typer.testing import CliRunner
 
 from coildrive.cli import app
 from coildrive.config import load_drive
-from coildrive.corners import corner_grid
-from coildrive.current_hold import current_losses, evaluate_current
+from coildrive.design.corners import corner_grid
+from coildrive.design.hold_current import current_losses, evaluate_current
 from coildrive.design import design
-from coildrive.evaluate import evaluate
+from coildrive.design.evaluate import evaluate
 from coildrive.model.armature import late_release, params_from_loop, release
 from coildrive.model.armature_sim import release_reference, simulate
 from coildrive.model.circuit import loop
@@ -196,7 +196,7 @@ def test_current_mode_losses_balance_at_every_corner(cm_designs):
     over a cycle), from the library's own figures."""
     drive, _ = cm_designs["hysteretic"]
     d = design(drive)
-    th = d.extra["current_thresholds"]
+    th = d.hold.thresholds
     grid = corner_grid(drive)
     res, cm = evaluate_current(drive, th, grid.supply, grid.ambient, grid.r_factor, grid.l_factor,
                                d.pull_in.peak_time_s)
@@ -274,7 +274,7 @@ def test_current_mode_split_release_is_fast(cm_split):
     fw = drive.freewheel
     d = design(drive)
     grid = corner_grid(drive)
-    res, cm = evaluate_current(drive, d.extra["current_thresholds"], grid.supply, grid.ambient,
+    res, cm = evaluate_current(drive, d.hold.thresholds, grid.supply, grid.ambient,
                                grid.r_factor, grid.l_factor, d.pull_in.peak_time_s)
     drop = drive.release.current
     for k, corner in enumerate(doc["corners"]):

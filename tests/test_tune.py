@@ -28,13 +28,13 @@ import numpy as np
 import pytest
 
 from coildrive.config import Timer, load_drive
-from coildrive.corners import corner_grid
+from coildrive.design.corners import corner_grid
 from coildrive.design import design
 from coildrive.errors import InputError
-from coildrive.evaluate import evaluate
+from coildrive.design.evaluate import evaluate
 from coildrive.model.pwm import duty_for_mean, duty_for_mean_bisect, pwm_steady_state
 from coildrive.model.circuit import loop
-from coildrive.tune import (TuneOptions, minimum_hold_current, realisable_frequencies,
+from coildrive.tune.sweep import (TuneOptions, minimum_hold_current, realisable_frequencies,
                             recommended_design, tune)
 from conftest import BOARDS, EXAMPLES
 

@@ -49,7 +49,7 @@ from coildrive.config import load_drive
 from coildrive.design import design
 from coildrive.errors import InputError
 from coildrive.model.pwm import pwm_steady_state
-from coildrive.tune_live import (LiveOptions, LiveTuner, bench_point, judge_actuation,
+from coildrive.tune.live import (LiveOptions, LiveTuner, bench_point, judge_actuation,
                                  model_dropout_duty, model_stay_current, recommend, settled_value)
 
 LATCH = EXAMPLES / "locker-latch-12v.toml"

@@ -26,7 +26,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..config import Board, Drive
-from ..corners import nominal_point
+from ..design.corners import nominal_point
 from ..errors import InputError
 from ..jsondoc import json_ready
 from .analysis import Analysis, analyse
@@ -230,7 +230,7 @@ def _waveform_crossing(w, level: float, start: float, rising: bool) -> float | N
 def predict(design, point: OperatingPoint, hold_time: float) -> tuple[dict, object]:
     """Predicted figures (SI) at ``point`` with the design's setting, and the model waveform
     of one actuation with ``hold_time`` s of hold."""
-    from ..evaluate import evaluate
+    from ..design.evaluate import evaluate
     from ..model.waveform import actuation
 
     drive = design.drive

@@ -33,7 +33,7 @@ from fractions import Fraction
 import numpy as np
 
 from ..config import Drive
-from ..timer import MIN_PERIOD_TICKS, solve_timer
+from ..design.timer import MIN_PERIOD_TICKS, solve_timer
 from .messages import Command, Event, EventKind, Info, Message, Opcode, Reply, ReplyStatus, Samples
 from .protocol import MAX_SAMPLES_PER_FRAME, FrameDecoder, FrameEncoder
 from .synth import (FAULTS, actuation_events, actuation_waveform, adc_scaling, current_codes,
@@ -247,7 +247,7 @@ class VirtualDevice:
         self.options = options = options or DeviceOptions()
         self.design = design
         self.drive = drive = design.drive
-        if "current_mode" in design.extra:
+        if design.hold.current_mode is not None:
             raise ValueError("the virtual device runs a voltage-mode (fixed duty) hold")
         if design.pull_in.peak_ticks <= 0:
             raise ValueError("the design has no peak phase (the pull-in current is never reached)")

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..plot import agg_figure, png_bytes
+from ..plotting import agg_figure, png_bytes
 from .capture_file import Capture
 from .check import FAIL, CheckReport
 

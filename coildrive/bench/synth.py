@@ -36,7 +36,7 @@ from typing import Callable
 import numpy as np
 
 from ..config import Drive
-from ..corners import nominal_point
+from ..design.corners import nominal_point
 from ..model.waveform import Waveform, actuation
 from .capture_file import Capture, CaptureEvent
 from .messages import EventKind

@@ -56,7 +56,7 @@ def _print_check(report, console=None) -> None:
     from rich.markup import escape
     from rich.table import Table
 
-    from ..report import print_cautions, print_verdict
+    from ..console import print_cautions, print_verdict
 
     console = console or Console()
     p = report.point

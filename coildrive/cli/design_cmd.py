@@ -32,11 +32,12 @@ def _run_design(drive_path: Path, board: Optional[str], as_json: bool, header: O
     if as_json:
         typer.echo(json.dumps(result.to_dict(), indent=2))
     else:
-        from ..report import print_design
+        from ..design.report import print_design
         print_design(result)
     if plot is not None:
-        from ..plot import plot_design
-        write_atomic(plot, plot_design(result))
+        from ..design import design_waveforms
+        from ..design.plot import plot_design
+        write_atomic(plot, plot_design(result, design_waveforms(result)))
         status(f"wrote plot {plot}")
     if not result.ok:
         if header is not None:
@@ -89,8 +90,7 @@ def simulate_command(
     points: int = typer.Option(8, "--points", help="Samples per PWM segment (the peak and the decay get 40x)."),
 ) -> None:
     """Simulate one actuation with the design's peak and hold: on, peak, hold, off, decay."""
-    from ..design import design
-    from ..model.waveform import actuation
+    from ..design import actuation, design
 
     v = parse_quantity(supply, "voltage", "--supply")
     t = parse_quantity(coil_temp, "temperature", "--coil-temp")
@@ -108,19 +108,7 @@ def simulate_command(
     if d.pull_in.peak_ticks == 0:
         raise InputError(str(drive), "pull_in.current", "is never reached at the worst corner, "
                          "so the design has no peak time to simulate")
-    if "current_mode" in d.extra:
-        from ..current_hold import current_mode_actuation
-        w = current_mode_actuation(d.drive, d.extra["current_thresholds"], v, t, d.pull_in.peak_time_s,
-                                   h, r_factor, l_factor, points)
-    else:
-        s = d.split_decay
-        if s is not None and s.lead_counts > s.on_time_counts:
-            raise InputError(str(drive), "freewheel.bypass_lead",
-                             f"{d.drive.freewheel.bypass_lead * 1e6:.4g} us is longer than the hold "
-                             f"on-time ({s.on_time_counts / s.count_rate_hz * 1e6:.4g} us): the "
-                             "bypass would open during an off-time")
-        w = actuation(d.drive, v, t, d.pull_in.peak_time_s, d.hold.duty, d.hold.frequency_hz, h,
-                      r_factor, l_factor, points)
+    w = actuation(d, v, t, h, r_factor, l_factor, points)
     write_atomic(csv, w.to_csv())
     status(f"wrote {csv}: {len(w.time)} samples, peak {d.pull_in.peak_time_s * 1e3:.4g} ms, "
            f"hold duty {d.hold.duty:.4f} at {d.hold.frequency_hz:.6g} Hz, off at "

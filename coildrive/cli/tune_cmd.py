@@ -91,7 +91,7 @@ def tune_command(
             raise InputError(option, "", "is for the live bench tuning: give --port too")
     if margin is None:
         margin = 1.0
-    from ..tune import TuneOptions, recommended_design, tune
+    from ..tune.sweep import TuneOptions, recommended_design, tune
 
     amps, frac = _ripple(max_ripple)
     step = parse_quantity(level_step, "dimensionless", "--level-step")
@@ -111,13 +111,13 @@ def tune_command(
         result.notes.append(f"the design rounds this setting to compare {des.timer.compare_ticks} "
                             "(thermal tolerance); the header uses the design's value")
     if as_json:
-        from ..tune_report import tune_dict
+        from ..tune.report import tune_dict
         typer.echo(json.dumps(tune_dict(result, des), indent=2))
     else:
-        from ..tune_report import print_tune
+        from ..tune.report import print_tune
         print_tune(result, des)
     if plot is not None:
-        from ..tune_plot import plot_tune
+        from ..tune.plot import plot_tune
         write_atomic(plot, plot_tune(result))
         status(f"wrote plot {plot}")
     if des is None:
@@ -146,7 +146,7 @@ def _live(drive: Path, board: Optional[str], port: str, as_json: bool, header: O
     from ..bench.link import DeviceLink, LinkError
     from ..bench.synth import adc_scaling
     from ..design import design
-    from ..tune_live import LiveOptions, LiveTuner
+    from ..tune.live import LiveOptions, LiveTuner
 
     options = LiveOptions(
         repeats=3 if repeats is None else repeats,
@@ -204,7 +204,7 @@ def _live(drive: Path, board: Optional[str], port: str, as_json: bool, header: O
         status(f"coildrive tune: live on {port} at {line_rate} baud; capture {capture}, log {log}")
         with progress:
             result = LiveTuner(link, des, options, progress=report).run()
-    from ..tune_live_report import live_dict, print_live
+    from ..tune.live_report import live_dict, print_live
 
     doc = live_dict(result, port=port, capture=str(capture), log=str(log))
     write_atomic(log, json.dumps(doc, indent=2) + "\n")

@@ -8,10 +8,12 @@ text out.
 
 from __future__ import annotations
 
+import dataclasses
+import math
 import re
 from dataclasses import dataclass
 
-from ..design import Design
+from ..design.result import Design
 from ..errors import InputError
 from ..resources import data_dir
 
@@ -102,11 +104,10 @@ class HeaderView:
             self.constants += _armature_constants(d, m)
         self.bypass_constants = _bypass_constants(d, m)
         self.table = list(zip(d.duty_table.adc_codes, d.duty_table.compare_ticks, d.duty_table.supply_v))
-        from ..current_hold import header_checks, header_constants, header_summary, relabel_fallback
-        self.constants = relabel_fallback(d, m, self.constants)
-        self.current_constants = header_constants(d, m)
-        self.current_checks = header_checks(d, m)
-        self.current_summary = header_summary(d)
+        self.constants = _current_relabel_fallback(d, m, self.constants)
+        self.current_constants = _current_header_constants(d, m)
+        self.current_checks = _current_header_checks(d, m)
+        self.current_summary = _current_header_summary(d)
 
     def value(self, suffix: str) -> int:
         return next(c.value for c in self.constants if c.name == f"{self.macro}_{suffix}")
@@ -115,8 +116,6 @@ class HeaderView:
 def _armature_constants(d: Design, m: str) -> list[Constant]:
     """With an ``[armature]``: the window in which the firmware should see the current dip
     (the seat moment) and the time until the armature is back open, in scheduler ticks."""
-    import math
-
     a = d.armature
     rate = d.drive.board.tick.rate
     if not (math.isfinite(a.seat_time_min_s) and math.isfinite(a.seat_time_s)
@@ -147,6 +146,69 @@ def _bypass_constants(d: Design, m: str) -> list[Constant]:
                  f"or this many counts after it ({s.lag_counts / s.count_rate_hz * 1e6:.4g} us; "
                  "0 = not late)"),
     ]
+
+
+# --------------------------------------------------------------------------- current mode
+def _current_header_constants(design: Design, macro: str) -> list[Constant]:
+    """Extra header macros of a current-mode design (empty for voltage mode)."""
+    r = design.hold.current_mode
+    if r is None:
+        return []
+    m = macro
+    if r.control == "hysteretic":
+        return [
+            Constant(f"{m}_HOLD_HYSTERETIC", 1, "current-mode hold: hysteretic band"),
+            Constant(f"{m}_HOLD_LOWER_CODE", r.lower_code, f"switch on below {r.lower_a:.4g} A"),
+            Constant(f"{m}_HOLD_UPPER_CODE", r.upper_code, f"switch off at or above {r.upper_a:.4g} A"),
+        ]
+    return [
+        Constant(f"{m}_HOLD_OFF_TIME", 1, "current-mode hold: peak threshold + fixed off time"),
+        Constant(f"{m}_HOLD_PEAK_CODE", r.upper_code, f"switch off at or above {r.upper_a:.4g} A"),
+        Constant(f"{m}_HOLD_OFF_PRESCALER", r.off_prescaler, "off-time timer divide ratio"),
+        Constant(f"{m}_HOLD_OFF_TICKS", r.off_ticks, f"off time {r.off_time_s * 1e6:.5g} us"),
+    ]
+
+
+def _current_relabel_fallback(design: Design, macro: str, constants: list) -> list:
+    """In a current-mode header, say that the PWM compare and frequency are the fixed-duty
+    fallback (voltage-mode headers are returned unchanged)."""
+    if design.hold.current_mode is None:
+        return constants
+    fallback = design.timer.compare_ticks / design.timer.period_ticks
+    notes = {f"{macro}_HOLD_COMPARE_TICKS": f"fixed-duty fallback: on-time counts (duty {fallback:.4f})",
+             f"{macro}_HOLD_FREQUENCY_HZ": f"fixed-duty fallback PWM frequency ({design.timer.frequency_hz:.6g} Hz)"}
+    return [dataclasses.replace(c, comment=notes[c.name]) if c.name in notes else c for c in constants]
+
+
+def _current_header_summary(design: Design) -> list[str]:
+    """Summary lines of the current-mode hold for the header comment (empty for voltage)."""
+    r = design.hold.current_mode
+    if r is None:
+        return []
+    what = (f"hysteretic {r.lower_a:.4g}..{r.upper_a:.4g} A" if r.control == "hysteretic" else
+            f"peak {r.upper_a:.4g} A, off {r.off_time_s * 1e6:.5g} us")
+    return [f"current   mode hold, {what}: switching {r.min_frequency_hz:.5g}..{r.max_frequency_hz:.5g} Hz "
+            f"over the corners (nominal {r.nominal_frequency_hz:.5g} Hz); the PWM compare and duty "
+            "table below are the fixed-duty fallback"]
+
+
+def _current_header_checks(design: Design, macro: str) -> list[tuple[str, str]]:
+    """``(condition, message)`` pairs for ``#if ... #error`` in a current-mode header."""
+    r = design.hold.current_mode
+    if r is None:
+        return []
+    m = macro
+    if r.control == "hysteretic":
+        return [(f"{m}_HOLD_LOWER_CODE >= {m}_HOLD_UPPER_CODE || {m}_HOLD_LOWER_CODE < 1",
+                 "hysteretic thresholds out of order"),
+                (f"{m}_HOLD_UPPER_CODE >= {m}_ADC_OVER_CURRENT_CODE",
+                 "upper hold threshold at or above the over-current threshold")]
+    return [(f"{m}_HOLD_PEAK_CODE >= {m}_ADC_OVER_CURRENT_CODE",
+             "peak hold threshold at or above the over-current threshold"),
+            (f"{m}_HOLD_OFF_TICKS < 2 || {m}_HOLD_OFF_TICKS - 1U > {m}_TIMER_COUNTER_MAX",
+             "off time does not fit the timer counter"),
+            (f"{m}_HOLD_OFF_PRESCALER < 1 || {m}_HOLD_OFF_PRESCALER > {m}_TIMER_PRESCALER_MAX",
+             "off-time prescaler outside the timer's range")]
 
 
 def generate_header(design: Design, prefix: str = "COIL") -> str:

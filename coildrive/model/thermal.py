@@ -12,6 +12,12 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..config import Drive
+from .circuit import COPPER_ALPHA, copper_resistance
+
+#: Hottest coil temperature a settled point may have (degC); above it, a runaway.
+CEILING_C = 1000.0
+
 
 def settle_temperature(ambient, thermal_resistance, power_at, tol: float = 1e-4,
                        max_iter: int = 100, ceiling: float = 1000.0):
@@ -48,3 +54,24 @@ def settle_temperature(ambient, thermal_resistance, power_at, tol: float = 1e-4,
         x2 = q * x1 + (1.0 - q) * g1
         x0, g0, x1 = x1, g1, np.where(done | bad, x1, x2)
     return np.where(np.abs(g(x1) - x1) < tol * 10, x1, np.inf)
+
+
+def coil_r20(drive: Drive, r_factor):
+    """Coil resistance (ohm) at 20 degC, times the corner's ``r_factor``: ``rho`` below."""
+    return r_factor * copper_resistance(drive.coil.resistance, drive.coil.reference_temp, 20.0)
+
+
+def closed_form_temperature(drive: Drive, ambient, r_factor, rms):
+    """Coil temperature (degC) for a coil carrying ``rms`` A that does not depend on T.
+
+    With the copper law linear in T, ``T = T_a + R_th rms^2 R(T)`` solves exactly:
+    ``T = (T_a + k (1 - 20 a)) / (1 - k a)``, ``k = R_th rms^2 rho``,
+    ``rho = r_factor R_ref / (1 + a (T_ref - 20))``; ``inf`` where ``k a >= 1`` (runaway).
+    """
+    a = COPPER_ALPHA
+    rho = coil_r20(drive, r_factor)
+    k = drive.thermal.resistance * rms * rms * rho
+    den = 1.0 - k * a
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t = (ambient + k * (1.0 - 20.0 * a)) / den
+    return np.where((den > 0) & np.isfinite(t) & (t <= CEILING_C), t, np.inf)

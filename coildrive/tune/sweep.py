@@ -27,14 +27,15 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .config import Drive, Hold, Timer
-from .corners import CornerGrid, corner_grid
-from .errors import InputError
-from .jsondoc import json_ready
-from .model.circuit import COPPER_ALPHA, copper_resistance, loop
-from .model.losses import hold_losses
-from .model.pwm import duty_for_mean, pwm_steady_state
-from .timer import MIN_PERIOD_TICKS, solve_timer
+from ..config import Drive, Hold, Timer
+from ..design.corners import CornerGrid, corner_grid
+from ..design.timer import MIN_PERIOD_TICKS, solve_timer
+from ..errors import InputError
+from ..jsondoc import json_ready
+from ..model.circuit import COPPER_ALPHA, loop
+from ..model.losses import hold_losses
+from ..model.pwm import duty_for_mean, pwm_steady_state
+from ..model.thermal import CEILING_C, closed_form_temperature, coil_r20
 
 #: Lower end of the sweep by default: the upper limit of hearing (common practice).
 DEFAULT_MIN_FREQUENCY = 20_000.0
@@ -49,8 +50,6 @@ DEFAULT_RIPPLE_FRACTION = 0.2
 MAX_POINTS = 20_000_000
 #: Elements per vectorised chunk (fits the caches; far faster than one huge array).
 CHUNK = 12_288
-#: Coil temperatures above this are called a runaway (as in model/thermal.py).
-CEILING_C = 1000.0
 #: Convergence of the self-heating fixed point, K (tighter than model/thermal.py's
 #: 1e-4 K, so the sweep agrees with :func:`coildrive.evaluate.evaluate` to that tolerance).
 TEMP_TOL = 1e-5
@@ -169,27 +168,6 @@ def realisable_frequencies(timer: Timer, low: float, high: float):
 
 
 # --------------------------------------------------------------------------- physics
-def _coil_r20(drive: Drive, r_factor):
-    """Coil resistance (ohm) at 20 degC, times the corner's ``r_factor``: ``rho`` below."""
-    return r_factor * copper_resistance(drive.coil.resistance, drive.coil.reference_temp, 20.0)
-
-
-def closed_form_temperature(drive: Drive, ambient, r_factor, rms):
-    """Coil temperature (degC) for a coil carrying ``rms`` A that does not depend on T.
-
-    With the copper law linear in T, ``T = T_a + R_th rms^2 R(T)`` solves exactly:
-    ``T = (T_a + k (1 - 20 a)) / (1 - k a)``, ``k = R_th rms^2 rho``,
-    ``rho = r_factor R_ref / (1 + a (T_ref - 20))``; ``inf`` where ``k a >= 1`` (runaway).
-    """
-    a = COPPER_ALPHA
-    rho = _coil_r20(drive, r_factor)
-    k = drive.thermal.resistance * rms * rms * rho
-    den = 1.0 - k * a
-    with np.errstate(divide="ignore", invalid="ignore"):
-        t = (ambient + k * (1.0 - 20.0 * a)) / den
-    return np.where((den > 0) & np.isfinite(t) & (t <= CEILING_C), t, np.inf)
-
-
 def _temp_guess(drive: Drive, supply, ambient, r_factor, duty):
     """A first guess of the settled temperature (degC), for the exact iteration to refine.
 
@@ -203,7 +181,7 @@ def _temp_guess(drive: Drive, supply, ambient, r_factor, duty):
     r_th = drive.thermal.resistance
     a = COPPER_ALPHA
     fw = drive.freewheel
-    rho = _coil_r20(drive, r_factor)
+    rho = coil_r20(drive, r_factor)
     extra_on = drive.switch.on_resistance + drive.board.sense.resistance
     extra_off = (drive.board.sense.resistance if drive.board.sense.position == "coil" else 0.0) + fw.resistance
     # The fast path's off-voltage even with split decay: only a first guess, which the
@@ -237,7 +215,7 @@ def settle_voltage_mode(drive: Drive, supply, ambient, r_factor, l_factor, duty,
     """
     r_th = drive.thermal.resistance
     a = COPPER_ALPHA
-    dr_dt = _coil_r20(drive, r_factor) * a
+    dr_dt = coil_r20(drive, r_factor) * a
     temp = _temp_guess(drive, supply, ambient, r_factor, duty) if r_th > 0 else np.array(ambient, float)
     done = np.zeros(temp.shape, bool)
     bad = np.zeros(temp.shape, bool)
@@ -664,6 +642,6 @@ def recommended_design(result: TuneResult):
     """
     if result.recommendation is None:
         return None
-    from .design import design
+    from ..design import design
 
     return design(result.recommended_drive())

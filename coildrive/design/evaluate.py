@@ -15,11 +15,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .config import Drive
-from .model.circuit import Loop, freewheel_element_energy, loop, split_decay
-from .model.pwm import PwmSteadyState, duty_for_mean, pwm_steady_state
-from .model.rl import decay_current, decay_integrals, decay_time, rise_current, rise_time
-from .model.thermal import settle_temperature
+from ..config import Drive
+from ..model.circuit import Loop, freewheel_element_energy, loop, split_decay
+from ..model.pwm import PwmSteadyState, duty_for_mean, pwm_steady_state
+from ..model.rl import decay_current, decay_integrals, decay_time, rise_current, rise_time
+from ..model.thermal import settle_temperature
 
 
 def hold_temperature(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency):
@@ -124,9 +124,9 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
     path), with a late bypass decaying through ``lp`` first (:func:`late_release`)."""
     import dataclasses
 
-    from .model.armature import (hold_force_current, late_release, params_from_loop,
+    from ..model.armature import (hold_force_current, late_release, params_from_loop,
                                  peak_current_closed_form, pull_in, release)
-    from .model.magnet import stroke_current
+    from ..model.magnet import stroke_current
 
     shape = np.shape(lp.v_on)
     fields = ("v_on", "r_on", "r_off", "v_off", "inductance", "r_coil", "supply")

@@ -11,9 +11,9 @@ from rich.console import Console
 from rich.markup import escape
 from rich.table import Table
 
-from . import __version__
-from .jsondoc import document_head, json_ready
-from .report import print_cautions
+from .. import __version__
+from ..console import print_cautions
+from ..jsondoc import document_head, json_ready
 
 
 def _a(amps: float | None) -> str:
@@ -78,7 +78,7 @@ def comparison_table(res) -> Table:
 
 def print_live(res, console: Console | None = None) -> None:
     """The actuations, the comparison, the [hold] to paste, notes and cautions."""
-    from .bench.check import BENCH_CAUTIONS
+    from ..bench.check import BENCH_CAUTIONS
 
     console = console or Console()
     if res.actuations:
@@ -110,7 +110,7 @@ def print_live(res, console: Console | None = None) -> None:
 
 def live_dict(res, port: str | None = None, capture: str | None = None, log: str | None = None) -> dict:
     """The ``tune --port --json`` document (see docs/tuning.md)."""
-    from .bench.check import BENCH_CAUTIONS
+    from ..bench.check import BENCH_CAUTIONS
 
     d, c = res.duties(), res.currents()
     o = res.options

@@ -7,7 +7,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .config import Drive
+from ..config import Drive
 
 
 @dataclass(frozen=True)

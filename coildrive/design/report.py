@@ -6,8 +6,9 @@ from rich.console import Console
 from rich.markup import escape
 from rich.table import Table
 
-from .design import ELEMENT_NAMES, Design
-from .units import format_si
+from ..console import print_cautions, print_verdict
+from ..units import format_si
+from .result import ELEMENT_NAMES, Design
 
 
 def _ms(seconds: float) -> str:
@@ -159,8 +160,7 @@ def print_design(d: Design, console: Console | None = None) -> None:
     """Print the summary, checks, Monte Carlo (if any) and cautions."""
     console = console or Console()
     console.print(summary_table(d))
-    if "current_mode" in d.extra:
-        from .current_hold import current_mode_table
+    if d.hold.current_mode is not None:
         console.print(current_mode_table(d))
     console.print(checks_table(d))
     if d.monte_carlo is not None:
@@ -169,18 +169,26 @@ def print_design(d: Design, console: Console | None = None) -> None:
     print_verdict(console, d.ok, "design ok", "design FAILED", [c.name for c in d.failed])
 
 
-def print_cautions(console: Console, cautions, highlight: bool | None = None) -> None:
-    """The ``Cautions`` block of a terminal report: a heading, then ``  ! caution`` per
-    line (as text: rich markup in a caution is escaped). ``highlight`` as for
-    :meth:`rich.console.Console.print`."""
-    console.print("[bold]Cautions[/bold]")
-    for c in cautions:
-        console.print(f"  ! {escape(c)}", highlight=highlight)
-
-
-def print_verdict(console: Console, ok: bool, passed: str, failed: str, names) -> None:
-    """The last line of a report: ``passed`` in green, or ``failed: name, name`` in red."""
-    if ok:
-        console.print(f"[green]{passed}[/green]")
+def current_mode_table(design: Design) -> Table:
+    """rich table of the current-mode thresholds and switching range."""
+    r = design.hold.current_mode
+    t = Table(title=f"current-mode hold ({r.control})")
+    t.add_column("figure")
+    t.add_column("value", justify="right")
+    t.add_column("where / how")
+    if r.control == "hysteretic":
+        t.add_row("thresholds", f"{r.lower_code} / {r.upper_code} codes",
+                  f"{r.lower_a:.4g} / {r.upper_a:.4g} A, band {r.band_codes} codes"
+                  + (" (sized from hold.frequency)" if r.sized_from_frequency else ""))
     else:
-        console.print(f"[bold red]{failed}[/bold red]: " + ", ".join(names))
+        t.add_row("peak threshold", f"{r.upper_code} code", f"{r.upper_a:.4g} A")
+        t.add_row("off time", f"{r.off_time_s * 1e6:.5g} us",
+                  f"{r.off_ticks} ticks at prescaler {r.off_prescaler}"
+                  + (" (sized from hold.frequency)" if r.sized_from_frequency else ""))
+    t.add_row("switching frequency", f"{r.min_frequency_hz:.0f} .. {r.max_frequency_hz:.0f} Hz",
+              f"nominal {r.nominal_frequency_hz:.0f} Hz; allowed {r.allowed_min_frequency_hz:.0f}.."
+              f"{r.allowed_max_frequency_hz:.0f} Hz")
+    t.add_row("switch-on fraction", f"{r.min_duty:.3f} .. {r.max_duty:.3f}", "over the corners")
+    t.add_row("sense", r.sense_position, f"delay {r.sense_delay_s * 1e6:.3g} us; one code "
+              f"{r.code_current_a * 1e3:.4g} mA")
+    return t

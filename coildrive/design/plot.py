@@ -1,34 +1,17 @@
-"""Plot of a Design's actuation waveforms (matplotlib, Agg), and the figure helpers the other
-plots share. Imported only for --plot."""
+"""Plot of a Design's actuation waveforms (matplotlib, Agg). Imported only for --plot."""
 
 from __future__ import annotations
 
-import io
-
-from .design import Design
-
-
-def agg_figure(**kwargs):
-    """A matplotlib ``Figure`` on the Agg backend (no display needed); keyword arguments
-    as for :class:`matplotlib.figure.Figure` (``figsize`` in inches, ``dpi``)."""
-    import matplotlib
-
-    matplotlib.use("Agg")
-    from matplotlib.figure import Figure
-
-    return Figure(**kwargs)
+from ..plotting import agg_figure, png_bytes
+from .result import Design
 
 
-def png_bytes(fig) -> bytes:
-    """The PNG bytes of ``fig``, laid out tight."""
-    fig.tight_layout()
-    buf = io.BytesIO()
-    fig.savefig(buf, format="png")
-    return buf.getvalue()
+def plot_design(d: Design, waveforms: dict) -> bytes:
+    """PNG bytes: coil current at the nominal and the worst pull-in corner, phases marked.
 
-
-def plot_design(d: Design) -> bytes:
-    """PNG bytes: coil current at the nominal and the worst pull-in corner, phases marked."""
+    ``waveforms``: the actuations to draw by name, as
+    :func:`coildrive.design.design_waveforms` makes them (``"worst"`` gives the phases).
+    """
     moving = d.armature is not None
     fig = agg_figure(figsize=(9, 7.5 if moving else 5), dpi=110)
     if moving:
@@ -36,9 +19,9 @@ def plot_design(d: Design) -> bytes:
     else:
         ax = fig.add_subplot(1, 1, 1)
     colours = {"nominal": "tab:blue", "worst": "tab:red"}
-    for key, w in d.waveforms.items():
+    for key, w in waveforms.items():
         ax.plot(w.time * 1e3, w.current, lw=0.9, color=colours.get(key), label=w.label)
-    w = d.waveforms["worst"]
+    w = waveforms["worst"]
     ev = w.events
     split = w.bypass_on is not None
     ax.axvspan(0, ev["hold"] * 1e3, color="tab:orange", alpha=0.12, label="peak")
@@ -47,7 +30,7 @@ def plot_design(d: Design) -> bytes:
     ax.axvspan(ev["off"] * 1e3, ev["zero"] * 1e3, color="tab:gray", alpha=0.15,
                label="release (fast decay: bypass open)" if split else "release")
     if split:
-        _bypass_trace(d, ax, colours)
+        _bypass_trace(d, waveforms, ax, colours)
     ax.axhline(d.pull_in.current_a, color="k", ls="--", lw=0.8)
     ax.text(0, d.pull_in.current_a, " pull-in", va="bottom", fontsize=8)
     ax.axhline(d.hold.current_a, color="k", ls=":", lw=0.8)
@@ -55,7 +38,7 @@ def plot_design(d: Design) -> bytes:
     ax.axhline(d.release.dropout_current_a, color="k", ls="-.", lw=0.8)
     ax.text(0, d.release.dropout_current_a, " drop-out", va="bottom", fontsize=8)
     if moving:
-        _armature_panel(d, ax, ax_x, colours)
+        _armature_panel(d, waveforms, ax, ax_x, colours)
     else:
         ax.set_xlabel("time [ms]")
     ax.set_ylabel("coil current [A]")
@@ -66,10 +49,10 @@ def plot_design(d: Design) -> bytes:
     return png_bytes(fig)
 
 
-def _bypass_trace(d: Design, ax, colours: dict) -> None:
+def _bypass_trace(d: Design, waveforms: dict, ax, colours: dict) -> None:
     """Split decay: the bypass switch state on a second axis, and where it opens."""
     ax_b = ax.twinx()
-    for key, w in d.waveforms.items():
+    for key, w in waveforms.items():
         c = colours.get(key)
         ax_b.step(w.time * 1e3, w.bypass_on, where="post", color=c, lw=0.8, ls="--", alpha=0.7)
         ax.axvline(w.events["bypass_open"] * 1e3, color=c, ls="--", lw=0.7)
@@ -81,9 +64,9 @@ def _bypass_trace(d: Design, ax, colours: dict) -> None:
             transform=ax.transAxes, va="top", fontsize=7)
 
 
-def _armature_panel(d: Design, ax, ax_x, colours: dict) -> None:
+def _armature_panel(d: Design, waveforms: dict, ax, ax_x, colours: dict) -> None:
     """Armature position under the current; the dip and the seat/release moments marked."""
-    for key, w in d.waveforms.items():
+    for key, w in waveforms.items():
         c = colours.get(key)
         ax_x.plot(w.time * 1e3, w.position * 1e3, lw=0.9, color=c, label=w.label)
         ev = w.events

@@ -1,7 +1,7 @@
 """Current-mode hold (``[hold] mode = "current"``): thresholds, figures and checks.
 
-:func:`design_current_mode` is what :func:`coildrive.design.design` runs for a
-current-mode drive. It starts from the fixed-duty design of the same drive (kept as
+One hold strategy (see :mod:`coildrive.design.holds`): :func:`design` is what
+:func:`coildrive.design.design` runs for a current-mode drive. It starts from the fixed-duty design of the same drive (kept as
 the *fixed-duty fallback*: ``timer``, ``duty_table`` and ``_HOLD_COMPARE_TICKS`` keep
 their voltage-mode meaning, for firmware that starts the hold open-loop or falls back
 to it), then replaces everything the hold decides with the current-mode model of
@@ -37,20 +37,24 @@ from __future__ import annotations
 
 import dataclasses
 import math
-from dataclasses import asdict, dataclass
 
 import numpy as np
 
-from .config import Drive
+from ..config import Drive
+from ..errors import InputError
+from ..model.circuit import loop, split_decay
+from ..model.current_mode import (CurrentModeSteadyState, hysteretic_steady_state,
+                                  off_time_steady_state)
+from ..model.losses import HoldLosses, element_powers
+from ..model.rl import decay_current, decay_time, rise_current, rise_time
+from ..model.thermal import closed_form_temperature, settle_temperature
+from . import hold_voltage
+from .checks import base_checks, cautions, loss_cautions, loss_checks
 from .corners import CornerGrid, corner_grid, nominal_point
-from .errors import InputError
 from .evaluate import PointResults, release_figures, switch_voltage_peak
-from .model.circuit import loop, split_decay
-from .model.current_mode import (CurrentModeSteadyState, hysteretic_steady_state,
-                                 off_time_steady_state)
-from .model.losses import HoldLosses, element_powers
-from .model.rl import decay_current, decay_time, rise_current, rise_time
-from .model.thermal import settle_temperature
+from .figures import (adc_thresholds, corners_of, hold_spread, loss_figures, peak_ticks_for,
+                      pull_in_result, release_result, saving_figures, slow_hold_drive, worst)
+from .result import Check, CurrentModeResult, Design, HoldResult, Thresholds
 from .timer import solve_timer
 
 #: Upper end of the allowed switching range when neither ``hold.max_frequency`` nor the
@@ -59,67 +63,6 @@ DEFAULT_MAX_FREQUENCY = 100_000.0
 #: Fewest ADC samples per shortest switching segment before the sampling lag deserves a
 #: ``hold.sense_delay`` (our choice).
 MIN_SAMPLES_PER_SEGMENT = 4
-
-
-@dataclass(frozen=True)
-class Thresholds:
-    """A current-mode setting. Currents in A (code x LSB), times in s.
-
-    ``lower_code`` is 0 for the off-time control; ``off_*`` are 0 for hysteretic.
-    """
-
-    control: str
-    lsb_a: float
-    lower_code: int
-    upper_code: int
-    off_time_s: float
-    off_prescaler: int
-    off_ticks: int
-    off_time_target_s: float
-    delay_s: float
-    sized: bool
-
-    @property
-    def lower_a(self) -> float:
-        return self.lower_code * self.lsb_a
-
-    @property
-    def upper_a(self) -> float:
-        return self.upper_code * self.lsb_a
-
-
-@dataclass(frozen=True)
-class CurrentModeResult:
-    """The ``current_mode`` object of the design JSON (SI, Hz, degC)."""
-
-    control: str
-    sense_position: str
-    code_current_a: float
-    lower_code: int | None
-    lower_a: float | None
-    upper_code: int
-    upper_a: float
-    band_codes: int | None
-    band_a: float | None
-    off_time_s: float | None
-    off_time_target_s: float | None
-    off_prescaler: int | None
-    off_ticks: int | None
-    sized_from_frequency: bool
-    sense_delay_s: float
-    nominal_frequency_hz: float
-    min_frequency_hz: float
-    min_frequency_corner: str
-    max_frequency_hz: float
-    max_frequency_corner: str
-    allowed_min_frequency_hz: float
-    allowed_max_frequency_hz: float
-    allowed_max_source: str
-    min_duty: float
-    max_duty: float
-    shortest_segment_s: float
-    regulated_corners: int
-    corners: int
 
 
 def lsb_current(drive: Drive) -> float:
@@ -187,8 +130,6 @@ def _smallest_holding(drive: Drive, grid: CornerGrid, codes: np.ndarray, band: i
 def _sizing_loops(drive: Drive, grid: CornerGrid):
     """Loops at the corners and the nominal point with the coil at the temperature a hold
     at ``hold.current`` gives it (sizing only; the design then evaluates exactly)."""
-    from .tune import closed_form_temperature
-
     nom = nominal_point(drive)
     sup = np.concatenate([nom.supply, grid.supply])
     amb = np.concatenate([nom.ambient, grid.ambient])
@@ -313,17 +254,15 @@ def _split_saving(drive: Drive, grid: CornerGrid, res: PointResults, cm: Current
     """What split decay would save in a current-mode hold on a fast-decay path: the same
     drive with the slow hold path, its thresholds chosen again (so the switching
     frequency changes too). ``None`` with a diode path or with split decay fitted."""
-    from . import design as dz
-
     if drive.freewheel.type == "diode" or split_decay(drive):
         return None
-    slow, assumed = dz._slow_hold_drive(drive)
+    slow, assumed = slow_hold_drive(drive)
     th = choose_thresholds(slow, grid)
     rs, cms = evaluate_current(slow, th, grid.supply, grid.ambient, grid.r_factor, grid.l_factor,
                                peak_time)
     ls = current_losses(slow, rs, cms)
     fb = fallback.hold.split_decay_saving or {}
-    out = dz._saving_figures(drive, res, loss, float(np.max(cm.duty)), rs, ls,
+    out = saving_figures(drive, res, loss, float(np.max(cm.duty)), rs, ls,
                              float(np.max(cms.duty)), fb.get("compare_ticks_split"), assumed)
     reg = cms.regulated
     f = cms.frequency[reg] if np.any(reg) else np.zeros(1)
@@ -347,27 +286,25 @@ def _split_result(drive: Drive, fallback, cm: CurrentModeSteadyState):
 
 
 # --------------------------------------------------------------------------- design
-def design_current_mode(drive: Drive, samples: int = 0, seed: int = 1):
+def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     """The Design of a current-mode drive (see the module docstring)."""
-    from . import design as dz
-
     if drive.armature is not None:
         raise InputError(drive.source, "hold.mode", "current-mode hold with an [armature] is not "
                          "modelled yet; use mode = \"voltage\" or leave [armature] out")
     if samples > 0:
         raise InputError("--samples", "", "the Monte Carlo covers the voltage-mode hold only "
                          "(this drive has hold.mode = \"current\")")
-    fallback = dz.design(dataclasses.replace(drive, hold=dataclasses.replace(drive.hold, mode="voltage")))
+    fallback = hold_voltage.design(
+        dataclasses.replace(drive, hold=dataclasses.replace(drive.hold, mode="voltage")))
     grid = corner_grid(drive)
     th = choose_thresholds(drive, grid)
     board = drive.board
 
     first, _ = evaluate_current(drive, th, grid.supply, grid.ambient, grid.r_factor, grid.l_factor, 0.0)
-    k_pull = dz._worst(first.pull_in_time)
+    k_pull = worst(first.pull_in_time)
     t_pull = float(first.pull_in_time[k_pull])
-    tick_rate = board.tick.rate
-    peak_ticks = math.ceil(t_pull * drive.pull_in.margin * tick_rate - 1e-9) + 1 if math.isfinite(t_pull) else 0
-    peak_time = peak_ticks / tick_rate
+    peak_ticks = peak_ticks_for(drive, t_pull)
+    peak_time = peak_ticks / board.tick.rate
     res, cm = evaluate_current(drive, th, grid.supply, grid.ambient, grid.r_factor, grid.l_factor,
                                peak_time)
     nom_grid = nominal_point(drive)
@@ -376,48 +313,50 @@ def design_current_mode(drive: Drive, samples: int = 0, seed: int = 1):
     # Hold powers at every corner from the exact switching cycle (coil at its settled
     # temperature there), as for the PWM hold.
     loss = current_losses(drive, res, cm)
-    corners = dz._corners(grid, res, loss)
-    nominal = dz._corners(nom_grid, nom, current_losses(drive, nom, nom_cm))[0]
-    nominal = dz.Corner(**{**asdict(nominal), "label": "nominal: " + nominal.label})
+    corners = corners_of(grid, res, loss)
+    nominal = corners_of(nom_grid, nom, current_losses(drive, nom, nom_cm))[0]
+    nominal = dataclasses.replace(nominal, label="nominal: " + nominal.label)
 
-    k_min = dz._worst(res.hold.mean, largest=False)
-    k_max = dz._worst(res.hold.mean)
-    k_hot = dz._worst(res.coil_temp)
-    hold = dz.HoldResult(
-        mode="current", current_a=drive.hold.current, frequency_hz=float(nom_cm.frequency[0]),
+    result = _mode_result(drive, th, grid, cm, float(nom_cm.frequency[0]))
+    hold = HoldResult(
+        mode="current", current_a=drive.hold.current, frequency_hz=result.nominal_frequency_hz,
         duty=float(np.max(cm.duty)), compare_ticks=fallback.hold.compare_ticks,
-        min_mean_current_a=float(res.hold.mean[k_min]), min_corner=grid.label(k_min),
-        max_mean_current_a=float(res.hold.mean[k_max]), max_corner=grid.label(k_max),
-        ripple_a=float(np.max(res.hold.ripple)), current_step_a=th.lsb_a,
-        coil_power_w=float(np.max(res.coil_power)), coil_temp_c=float(res.coil_temp[k_hot]),
-        hottest_corner=grid.label(k_hot), discontinuous_corners=int(np.sum(res.hold.dcm)),
-        **dz._loss_figures(drive, grid, loss),
-        split_decay_saving=_split_saving(drive, grid, res, cm, loss, fallback, peak_time))
+        current_step_a=th.lsb_a, **hold_spread(grid, res), **loss_figures(drive, grid, loss),
+        split_decay_saving=_split_saving(drive, grid, res, cm, loss, fallback, peak_time),
+        current_mode=result, thresholds=th)
+    release = release_result(drive, grid, res)
+    pull_in = pull_in_result(drive, grid, res, k_pull, t_pull, peak_ticks)
+    thresholds = adc_thresholds(drive, res, hold.min_mean_current_a)
 
-    k_rel = dz._worst(res.release_time)
-    rating = drive.switch.max_voltage
-    settle_t = float(np.max(res.release_zero_time))
-    release = dz.ReleaseResult(
-        freewheel=drive.freewheel.type, dropout_current_a=drive.release.current,
-        time_s=float(res.release_time[k_rel]), zero_time_s=settle_t, worst_corner=grid.label(k_rel),
-        lockout_ticks=math.ceil(settle_t * tick_rate - 1e-9) + 1 if math.isfinite(settle_t) else 0,
-        peak_switch_voltage_v=float(np.max(res.peak_switch_voltage)),
-        switch_limit_v=rating * drive.switch.derating, switch_rating_v=rating,
-        energy_j=float(np.max(res.release_energy)))
-    peak_end_max = float(np.max(res.peak_end_current))
-    pull_in = dz.PullInResult(current_a=drive.pull_in.current, time_s=t_pull,
-                              worst_corner=grid.label(k_pull), margin=drive.pull_in.margin,
-                              peak_time_s=peak_time, peak_ticks=peak_ticks,
-                              peak_end_current_max_a=peak_end_max)
-    adc = board.adc
-    vpa = fallback.adc.volts_per_amp
-    over_a = dz.OVER_CURRENT_FACTOR * max(peak_end_max, float(np.max(res.hold.i_max)))
-    open_a = dz.OPEN_LOAD_FACTOR * hold.min_mean_current_a
-    thresholds = dataclasses.replace(
-        fallback.adc, over_current_a=over_a, open_load_a=open_a,
-        over_current_code=dz._adc_code(over_a * vpa, adc.reference, adc.bits),
-        open_load_code=dz._adc_code(open_a * vpa, adc.reference, adc.bits))
+    setting = solve_timer(board.timer.clock, board.timer.bits, board.timer.prescaler_max,
+                          drive.hold.frequency, drive.hold.frequency_tolerance, board.timer.prescalers)
+    base = base_checks(drive, grid, res, pull_in, hold, release, fallback.timer, thresholds, setting)
+    old = {c.name: c for c in fallback.checks}
+    voltage_only = ("timer_frequency", "duty_range", "duty_resolution")
+    checks = [c for c in base if c.name not in voltage_only + ("audible_frequency",)]
+    checks += _current_checks(drive, th, result, thresholds, res, cm, grid)
+    split = _split_result(drive, fallback, cm) if split_decay(drive) else None
+    checks += loss_checks(drive, hold, loss, grid, split)
+    for name in voltage_only:
+        if name in old:
+            c = old[name]
+            checks.append(dataclasses.replace(c, detail="fixed-duty fallback: " + c.detail,
+                                              severity="warning"))
+    notes = cautions(drive, hold, release) + loss_cautions(drive, hold, release, split)
+    points = tuple(
+        hold_voltage.plot_point(drive, name, label, r, k, max(2.0 * peak_time, 20.0 * (
+            float(r.hold.period[k]) if np.isfinite(r.hold.period[k]) else 1e-4)))
+        for name, label, r, k in (("nominal", "nominal", nom, 0),
+                                  ("worst", "worst pull-in: " + grid.label(k_pull), res, k_pull)))
+    return dataclasses.replace(
+        fallback, drive=drive, pull_in=pull_in, hold=hold, release=release, adc=thresholds,
+        split_decay=split, corners=corners, nominal=nominal, checks=checks, cautions=notes,
+        actuation_points=points, input_hash=drive.input_hash(), worst_corner_index=k_pull)
 
+
+def _mode_result(drive: Drive, th: Thresholds, grid: CornerGrid, cm: CurrentModeSteadyState,
+                 nominal_frequency: float) -> CurrentModeResult:
+    """The thresholds and the switching range over the corners (the JSON's ``current_mode``)."""
     f_lo, f_hi, f_src = allowed_range(drive)
     reg = cm.regulated
     f = np.where(reg, cm.frequency, np.nan)
@@ -425,8 +364,8 @@ def design_current_mode(drive: Drive, samples: int = 0, seed: int = 1):
     k_fhi = int(np.nanargmax(f)) if np.any(reg) else 0
     segments = np.where(reg, np.minimum(cm.t_on, cm.t_off), np.inf)
     hyst = th.control == "hysteretic"
-    result = CurrentModeResult(
-        control=th.control, sense_position=board.sense.position, code_current_a=th.lsb_a,
+    return CurrentModeResult(
+        control=th.control, sense_position=drive.board.sense.position, code_current_a=th.lsb_a,
         lower_code=th.lower_code if hyst else None, lower_a=th.lower_a if hyst else None,
         upper_code=th.upper_code, upper_a=th.upper_a,
         band_codes=th.upper_code - th.lower_code if hyst else None,
@@ -435,7 +374,7 @@ def design_current_mode(drive: Drive, samples: int = 0, seed: int = 1):
         off_time_target_s=None if hyst else th.off_time_target_s,
         off_prescaler=None if hyst else th.off_prescaler, off_ticks=None if hyst else th.off_ticks,
         sized_from_frequency=th.sized, sense_delay_s=th.delay_s,
-        nominal_frequency_hz=hold.frequency_hz,
+        nominal_frequency_hz=nominal_frequency,
         min_frequency_hz=float(f[k_flo]) if np.any(reg) else 0.0, min_frequency_corner=grid.label(k_flo),
         max_frequency_hz=float(f[k_fhi]) if np.any(reg) else 0.0, max_frequency_corner=grid.label(k_fhi),
         allowed_min_frequency_hz=f_lo, allowed_max_frequency_hz=f_hi, allowed_max_source=f_src,
@@ -443,37 +382,9 @@ def design_current_mode(drive: Drive, samples: int = 0, seed: int = 1):
         shortest_segment_s=float(np.min(segments)), regulated_corners=int(np.sum(reg)),
         corners=len(grid))
 
-    setting = solve_timer(board.timer.clock, board.timer.bits, board.timer.prescaler_max,
-                          drive.hold.frequency, drive.hold.frequency_tolerance, board.timer.prescalers)
-    base = dz._checks(drive, grid, res, pull_in, hold, release, fallback.timer, thresholds, setting)
-    old = {c.name: c for c in fallback.checks}
-    voltage_only = ("timer_frequency", "duty_range", "duty_resolution")
-    checks = [c for c in base if c.name not in voltage_only + ("audible_frequency",)]
-    checks += _current_checks(drive, th, result, thresholds, res, cm, grid)
-    split = _split_result(drive, fallback, cm) if split_decay(drive) else None
-    checks += dz._loss_checks(drive, hold, loss, grid, split)
-    for name in voltage_only:
-        if name in old:
-            c = old[name]
-            checks.append(dataclasses.replace(c, detail="fixed-duty fallback: " + c.detail,
-                                              severity="warning"))
-    cautions = dz._cautions(drive, hold, release) + dz._loss_cautions(drive, hold, release, split)
-    waveforms = {
-        "nominal": _waveform(drive, th, nom, 0, peak_time, "nominal"),
-        "worst": _waveform(drive, th, res, k_pull, peak_time, "worst pull-in: " + grid.label(k_pull)),
-    }
-    return dataclasses.replace(
-        fallback, drive=drive, pull_in=pull_in, hold=hold, release=release, adc=thresholds,
-        split_decay=split,
-        corners=corners, nominal=nominal, checks=checks, cautions=cautions, waveforms=waveforms,
-        input_hash=drive.input_hash(), worst_corner_index=k_pull,
-        extra={**fallback.extra, "current_mode": result, "current_thresholds": th})
-
 
 def _current_checks(drive: Drive, th: Thresholds, r: CurrentModeResult, adc, res: PointResults,
                     cm: CurrentModeSteadyState, grid: CornerGrid):
-    from .design import Check
-
     out = []
     add = out.append
     hyst = th.control == "hysteretic"
@@ -541,6 +452,17 @@ def _current_checks(drive: Drive, th: Thresholds, r: CurrentModeResult, adc, res
 
 
 # --------------------------------------------------------------------------- waveform
+def actuation(design: Design, supply: float, coil_temp: float, hold_time: float,
+              r_factor: float = 1.0, l_factor: float = 1.0, points: int = 8, label: str = "",
+              strict: bool = True):
+    """One actuation of a current-mode ``design`` at one operating point (see
+    :func:`current_mode_actuation`; ``strict`` is there for the strategy interface: a
+    current-mode hold has nothing to refuse)."""
+    return current_mode_actuation(design.drive, design.hold.thresholds, supply, coil_temp,
+                                  design.pull_in.peak_time_s, hold_time, r_factor, l_factor,
+                                  points, label)
+
+
 def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_temp: float,
                            peak_time: float, hold_time: float, r_factor: float = 1.0,
                            l_factor: float = 1.0, points: int = 8, label: str = ""):
@@ -550,7 +472,7 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
     With split decay the hold's off segments take the slow path and the release the
     fast one, the bypass opening as ``freewheel.bypass_lead`` says (within the last
     on-time, or after the turn-off for a negative lead; a ``bypass_on`` column)."""
-    from .model.waveform import peak_samples, release_waveform, split_release, split_waveform
+    from ..model.waveform import peak_samples, release_waveform, split_release, split_waveform
 
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
     v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
@@ -603,103 +525,3 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
                               {"on": 0.0, "hold": peak_time, "off": t_off_edge, "zero": zero,
                                "bypass_open": t_open}, label)
     return release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_off_edge, i, big, label)
-
-
-def _waveform(drive: Drive, th: Thresholds, res: PointResults, k: int, peak_time: float, label: str):
-    temp = float(res.coil_temp[k]) if math.isfinite(res.coil_temp[k]) else drive.thermal.max_coil_temp
-    period = float(res.hold.period[k]) if np.isfinite(res.hold.period[k]) else 1e-4
-    hold_time = max(2.0 * peak_time, 20.0 * period)
-    return current_mode_actuation(drive, th, float(res.supply[k]), temp, peak_time, hold_time,
-                                  float(res.r_factor[k]), float(res.l_factor[k]), label=label)
-
-
-# --------------------------------------------------------------------------- outputs
-def header_constants(design, macro: str):
-    """Extra header macros of a current-mode design (empty for voltage mode)."""
-    from .codegen.header import Constant
-
-    r = design.extra.get("current_mode")
-    if r is None:
-        return []
-    m = macro
-    if r.control == "hysteretic":
-        return [
-            Constant(f"{m}_HOLD_HYSTERETIC", 1, "current-mode hold: hysteretic band"),
-            Constant(f"{m}_HOLD_LOWER_CODE", r.lower_code, f"switch on below {r.lower_a:.4g} A"),
-            Constant(f"{m}_HOLD_UPPER_CODE", r.upper_code, f"switch off at or above {r.upper_a:.4g} A"),
-        ]
-    return [
-        Constant(f"{m}_HOLD_OFF_TIME", 1, "current-mode hold: peak threshold + fixed off time"),
-        Constant(f"{m}_HOLD_PEAK_CODE", r.upper_code, f"switch off at or above {r.upper_a:.4g} A"),
-        Constant(f"{m}_HOLD_OFF_PRESCALER", r.off_prescaler, "off-time timer divide ratio"),
-        Constant(f"{m}_HOLD_OFF_TICKS", r.off_ticks, f"off time {r.off_time_s * 1e6:.5g} us"),
-    ]
-
-
-def relabel_fallback(design, macro: str, constants: list) -> list:
-    """In a current-mode header, say that the PWM compare and frequency are the fixed-duty
-    fallback (voltage-mode headers are returned unchanged)."""
-    if "current_mode" not in design.extra:
-        return constants
-    fallback = design.timer.compare_ticks / design.timer.period_ticks
-    notes = {f"{macro}_HOLD_COMPARE_TICKS": f"fixed-duty fallback: on-time counts (duty {fallback:.4f})",
-             f"{macro}_HOLD_FREQUENCY_HZ": f"fixed-duty fallback PWM frequency ({design.timer.frequency_hz:.6g} Hz)"}
-    return [dataclasses.replace(c, comment=notes[c.name]) if c.name in notes else c for c in constants]
-
-
-def header_summary(design) -> list[str]:
-    """Summary lines of the current-mode hold for the header comment (empty for voltage)."""
-    r = design.extra.get("current_mode")
-    if r is None:
-        return []
-    what = (f"hysteretic {r.lower_a:.4g}..{r.upper_a:.4g} A" if r.control == "hysteretic" else
-            f"peak {r.upper_a:.4g} A, off {r.off_time_s * 1e6:.5g} us")
-    return [f"current   mode hold, {what}: switching {r.min_frequency_hz:.5g}..{r.max_frequency_hz:.5g} Hz "
-            f"over the corners (nominal {r.nominal_frequency_hz:.5g} Hz); the PWM compare and duty "
-            "table below are the fixed-duty fallback"]
-
-
-def header_checks(design, macro: str) -> list[tuple[str, str]]:
-    """``(condition, message)`` pairs for ``#if ... #error`` in a current-mode header."""
-    r = design.extra.get("current_mode")
-    if r is None:
-        return []
-    m = macro
-    if r.control == "hysteretic":
-        return [(f"{m}_HOLD_LOWER_CODE >= {m}_HOLD_UPPER_CODE || {m}_HOLD_LOWER_CODE < 1",
-                 "hysteretic thresholds out of order"),
-                (f"{m}_HOLD_UPPER_CODE >= {m}_ADC_OVER_CURRENT_CODE",
-                 "upper hold threshold at or above the over-current threshold")]
-    return [(f"{m}_HOLD_PEAK_CODE >= {m}_ADC_OVER_CURRENT_CODE",
-             "peak hold threshold at or above the over-current threshold"),
-            (f"{m}_HOLD_OFF_TICKS < 2 || {m}_HOLD_OFF_TICKS - 1U > {m}_TIMER_COUNTER_MAX",
-             "off time does not fit the timer counter"),
-            (f"{m}_HOLD_OFF_PRESCALER < 1 || {m}_HOLD_OFF_PRESCALER > {m}_TIMER_PRESCALER_MAX",
-             "off-time prescaler outside the timer's range")]
-
-
-def current_mode_table(design):
-    """rich table of the current-mode thresholds and switching range."""
-    from rich.table import Table
-
-    r = design.extra["current_mode"]
-    t = Table(title=f"current-mode hold ({r.control})")
-    t.add_column("figure")
-    t.add_column("value", justify="right")
-    t.add_column("where / how")
-    if r.control == "hysteretic":
-        t.add_row("thresholds", f"{r.lower_code} / {r.upper_code} codes",
-                  f"{r.lower_a:.4g} / {r.upper_a:.4g} A, band {r.band_codes} codes"
-                  + (" (sized from hold.frequency)" if r.sized_from_frequency else ""))
-    else:
-        t.add_row("peak threshold", f"{r.upper_code} code", f"{r.upper_a:.4g} A")
-        t.add_row("off time", f"{r.off_time_s * 1e6:.5g} us",
-                  f"{r.off_ticks} ticks at prescaler {r.off_prescaler}"
-                  + (" (sized from hold.frequency)" if r.sized_from_frequency else ""))
-    t.add_row("switching frequency", f"{r.min_frequency_hz:.0f} .. {r.max_frequency_hz:.0f} Hz",
-              f"nominal {r.nominal_frequency_hz:.0f} Hz; allowed {r.allowed_min_frequency_hz:.0f}.."
-              f"{r.allowed_max_frequency_hz:.0f} Hz")
-    t.add_row("switch-on fraction", f"{r.min_duty:.3f} .. {r.max_duty:.3f}", "over the corners")
-    t.add_row("sense", r.sense_position, f"delay {r.sense_delay_s * 1e6:.3g} us; one code "
-              f"{r.code_current_a * 1e3:.4g} mA")
-    return t

@@ -7,11 +7,11 @@ from __future__ import annotations
 from rich.console import Console
 from rich.table import Table
 
-from . import __version__
-from .jsondoc import document_head, json_ready
-from .report import print_cautions
-from .tune import Candidate, TuneResult
-from .units import format_si
+from .. import __version__
+from ..console import print_cautions
+from ..jsondoc import document_head, json_ready
+from ..units import format_si
+from .sweep import Candidate, TuneResult
 
 
 def _ma(amps: float) -> str:

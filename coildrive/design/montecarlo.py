@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .config import Drive
+from ..config import Drive
 from .evaluate import evaluate
 
 PERCENTILES = (1.0, 50.0, 99.0)

@@ -53,8 +53,8 @@ from typing import Callable
 
 import numpy as np
 
-from .config import Drive
-from .errors import InputError
+from ..config import Drive
+from ..errors import InputError
 
 #: Wall-clock time without new samples, after the OFF and the current back at zero,
 #: that ends an actuation's stream (s; the device may stream only what it recorded).
@@ -169,8 +169,8 @@ def bench_point(drive: Drive, supply: float | None = None, coil_temp: float | No
     codes through the board's divider, else ``supply.nominal``) and ``coil_temp`` degC
     (else the median of the device's TEMPERATURE events, milli-degC, else the coil's
     reference temperature clipped into the ambient range)."""
-    from .bench.check import supply_from_codes
-    from .corners import nominal_point
+    from ..bench.check import supply_from_codes
+    from ..design.corners import nominal_point
 
     nom = nominal_point(drive)
     if supply is not None:
@@ -210,15 +210,15 @@ def hold_figures(drive: Drive, point: BenchPoint, duty, frequency: float) -> Hol
     nominal parts, at the bench point (the exact PWM steady state of
     :mod:`coildrive.model.pwm`; the force current of
     :func:`coildrive.model.armature.hold_force_current`)."""
-    from .model.circuit import loop
-    from .model.pwm import pwm_steady_state
+    from ..model.circuit import loop
+    from ..model.pwm import pwm_steady_state
 
     duty = np.atleast_1d(np.asarray(duty, float))
     lp = loop(drive, point.supply_v, point.coil_temp_c, 1.0, 1.0)
     ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
     force = ss.mean
     if drive.armature is not None:
-        from .model.armature import hold_force_current, params_from_loop
+        from ..model.armature import hold_force_current, params_from_loop
 
         p = params_from_loop(drive.armature, lp, 1.0)
         force, _ = hold_force_current(p, ss.i_min, ss.rms, ss.period)
@@ -233,8 +233,8 @@ def model_stay_current(drive: Drive, point: BenchPoint) -> float:
     file's ``release.current`` without an ``[armature]``."""
     if drive.armature is None:
         return float(drive.release.current)
-    from .model.armature import params_from_loop
-    from .model.circuit import loop
+    from ..model.armature import params_from_loop
+    from ..model.circuit import loop
 
     lp = loop(drive, point.supply_v, point.coil_temp_c, 1.0, 1.0)
     return float(params_from_loop(drive.armature, lp, 1.0).stay_current[0])
@@ -270,9 +270,9 @@ def corner_factor(drive: Drive, point: BenchPoint) -> tuple[float, str]:
     """
     if drive.armature is None:
         return 1.0, "no [armature]: the drop-out current is taken as the same at every corner"
-    from .corners import corner_grid
-    from .model.armature import params_from_loop
-    from .model.circuit import loop
+    from ..design.corners import corner_grid
+    from ..model.armature import params_from_loop
+    from ..model.circuit import loop
 
     grid = corner_grid(drive)
     lp = loop(drive, grid.supply, grid.ambient, grid.r_factor, grid.l_factor)
@@ -349,7 +349,7 @@ def _hold_rise(amps: np.ndarray, spp: float | None, noise_a: float) -> tuple[flo
         width = RISE_WINDOW_SAMPLES
     if amps.size < 2 * width:
         return 0.0, noise_a
-    from .bench.analysis import _smooth
+    from ..bench.analysis import _smooth
 
     s = _smooth(amps, width)[width:]
     rise = s - np.minimum.accumulate(s)
@@ -399,8 +399,8 @@ def judge_actuation(capture, *, hold_frequency: float, use_switch: bool,
         :data:`RISE_RIPPLE_FRACTION` of it).
     pull_in_current, dropout_current : A, passed to the analysis.
     """
-    from .bench.analysis import analyse
-    from .bench.messages import EventKind
+    from ..bench.analysis import analyse
+    from ..bench.messages import EventKind
 
     a = analyse(capture, pull_in_current=pull_in_current, dropout_current=dropout_current,
                 hold_frequency=hold_frequency, sense_position=sense_position)
@@ -613,8 +613,8 @@ def recommend(drive: Drive, point: BenchPoint, bench_dropout_a: float,
               margin: float | None = None) -> LiveRecommendation:
     """The hold current and its design from a bench drop-out current (A at the bench
     point; the highest over the repeats): see the module docstring for the rule."""
-    from .design import design
-    from .tune import minimum_hold_current
+    from ..design import design
+    from .sweep import minimum_hold_current
 
     k, worst = corner_factor(drive, point)
     m, m_src = hold_margin(drive, margin)
@@ -712,7 +712,7 @@ class LiveTuner:
 
     # ------------------------------------------------------------------ plumbing
     def _log(self, opcode, argument, reply=None, note: str = "") -> None:
-        from .bench.messages import Opcode, ReplyStatus
+        from ..bench.messages import Opcode, ReplyStatus
 
         def name(enum, v):
             try:
@@ -730,7 +730,7 @@ class LiveTuner:
     def _pump(self, timeout: float) -> bool:
         """Take every waiting message off the queue (waiting up to ``timeout`` s for the
         first); check samples for over-current. True if anything came."""
-        from .bench.messages import Event, EventKind, Info, Reply, Samples
+        from ..bench.messages import Event, EventKind, Info, Reply, Samples
 
         got = False
         wait = timeout
@@ -780,7 +780,7 @@ class LiveTuner:
         if info is not None and info.amps_per_code:
             apc = float(info.amps_per_code)
         else:
-            from .bench.synth import adc_scaling
+            from ..bench.synth import adc_scaling
             apc = adc_scaling(self.drive)[1]
         return apc, int(info.zero_code) if info is not None else 0
 
@@ -790,7 +790,7 @@ class LiveTuner:
 
         START goes once per try with a long timeout and no resend: a resent START whose
         first reply was lost would actuate twice."""
-        from .bench.messages import Opcode, ReplyStatus
+        from ..bench.messages import Opcode, ReplyStatus
 
         end = self.clock() + (deadline_s if deadline_s is not None else self.options.timeout + 30.0)
         busy = 0
@@ -813,7 +813,7 @@ class LiveTuner:
 
     def _stop(self) -> None:
         """STOP, on every exit path; note whether the device acknowledged it."""
-        from .bench.messages import Opcode, ReplyStatus
+        from ..bench.messages import Opcode, ReplyStatus
 
         try:
             reply = self.link.command(Opcode.STOP, 0, timeout=1.0, retries=3)
@@ -827,7 +827,7 @@ class LiveTuner:
 
     # ------------------------------------------------------------------ setup
     def _setup(self) -> None:
-        from .bench.messages import Opcode
+        from ..bench.messages import Opcode
 
         des = self.design
         res = self.result
@@ -876,8 +876,8 @@ class LiveTuner:
         return [e for e in self._events if e[0] > arrival and e[2] in kinds]
 
     def _actuate(self, duty: float, repeat: int, step: str) -> LiveActuation:
-        from .bench.capture_file import Capture, CaptureEvent
-        from .bench.messages import EventKind, Opcode
+        from ..bench.capture_file import Capture, CaptureEvent
+        from ..bench.messages import EventKind, Opcode
 
         des = self.design
         res = self.result
@@ -1089,7 +1089,7 @@ class LiveTuner:
 
     def run(self) -> LiveResult:
         """Run the procedure (see the module docstring); STOP on every exit."""
-        from .bench.link import LinkError
+        from ..bench.link import LinkError
 
         res = self.result
         des = self.design

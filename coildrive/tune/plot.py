@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from .plot import agg_figure, png_bytes
-from .tune import TuneResult
+from ..plotting import agg_figure, png_bytes
+from .sweep import TuneResult
 
 
 def plot_tune(r: TuneResult) -> bytes:

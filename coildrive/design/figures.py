@@ -1,0 +1,219 @@
+"""Figures every hold strategy builds the same way: corners, worst corners, the pull-in,
+hold spread, release and ADC-threshold results, and the hold-loss figures.
+
+Pure functions of the evaluated points (:class:`~coildrive.design.evaluate.PointResults`)
+to the plain results of :mod:`coildrive.design.result`.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+
+import numpy as np
+
+from ..config import Drive
+from ..model.circuit import split_decay
+from ..model.losses import HoldLosses
+from .corners import CornerGrid
+from .evaluate import PointResults
+from .result import AdcThresholds, Corner, PullInResult, ReleaseResult
+
+#: Over-current threshold above the highest normal current (common practice).
+OVER_CURRENT_FACTOR = 1.25
+#: Open-load threshold as a fraction of the lowest hold current (common practice).
+OPEN_LOAD_FACTOR = 0.5
+#: Drop of the freewheel diode assumed for the split-decay saving of a clamp board that
+#: gives none (common practice: a silicon rectifier at its working current).
+ASSUMED_DIODE_DROP = 0.8
+
+
+_PULL_STATUS = {0: "seated", 1: "never starts", 2: "stalls"}
+_RELEASE_STATUS = {0: "opens", 2: "stays closed"}
+
+
+def corner_armature(res: PointResults, k: int) -> dict | None:
+    a = res.armature
+    if a is None:
+        return None
+    pin, rel = a.pull_in, a.release
+    return {
+        "seat_time_s": float(pin.seat_time[k]), "impact_time_s": float(pin.impact_time[k]),
+        "dip_current_a": float(pin.dip_current[k]), "dip_time_s": float(pin.dip_time[k]),
+        "dip_depth_a": float(pin.dip_depth[k]), "start_time_s": float(pin.start_time[k]),
+        "bounces": int(pin.bounces[k]),
+        "release_unlatch_time_s": float(rel.unlatch_time[k]),
+        "release_open_time_s": float(rel.open_time[k]),
+        "start_current_a": float(a.start_current[k]), "stay_current_a": float(a.stay_current[k]),
+        "stroke_current_a": float(a.stroke_current[k]),
+        "hold_force_current_a": float(a.hold_current[k]),
+        "hold_force_margin": float(a.hold_current[k] / a.stay_current[k]),
+        "hold_lift_m": float(a.hold_lift[k]),
+        "armature_status": _PULL_STATUS[int(pin.status[k])],
+        "release_status": _RELEASE_STATUS[int(rel.status[k])],
+    }
+
+
+def corners_of(grid: CornerGrid, res: PointResults, losses: HoldLosses | None = None) -> list[Corner]:
+    out = []
+    nan = np.full(len(grid), math.nan)
+    fw_p = nan if losses is None else np.broadcast_to(losses.freewheel, nan.shape)
+    sw_p = nan if losses is None else np.broadcast_to(losses.switch, nan.shape)
+    for k in range(len(grid)):
+        out.append(Corner(
+            label=grid.label(k),
+            supply_v=float(res.supply[k]), ambient_c=float(res.ambient[k]),
+            coil_temp_c=float(res.coil_temp[k]), resistance_ohm=float(res.loop.r_coil[k]),
+            inductance_h=float(res.loop.inductance[k]), pull_in_time_s=float(res.pull_in_time[k]),
+            peak_end_current_a=float(res.peak_end_current[k]),
+            hold_mean_current_a=float(res.hold.mean[k]), hold_ripple_a=float(res.hold.ripple[k]),
+            hold_rms_current_a=float(res.hold.rms[k]),
+            hold_conduction="discontinuous" if res.hold.dcm[k] else "continuous",
+            coil_power_w=float(res.coil_power[k]), release_time_s=float(res.release_time[k]),
+            release_zero_time_s=float(res.release_zero_time[k]),
+            peak_switch_voltage_v=float(res.peak_switch_voltage[k]),
+            release_energy_j=float(res.release_energy[k]),
+            armature=corner_armature(res, k),
+            freewheel_power_w=float(fw_p[k]), switch_power_w=float(sw_p[k]),
+        ))
+    return out
+
+
+def adc_code(volts: float, reference: float, bits: int) -> int:
+    """ADC code for a pin voltage: ``floor(V / V_ref * 2^bits)``, clipped to full scale."""
+    return int(min(max(math.floor(volts / reference * 2**bits), 0), 2**bits - 1))
+
+
+def worst(values: np.ndarray, largest: bool = True) -> int:
+    v = np.where(np.isnan(values), np.inf if largest else -np.inf, values)
+    return int(np.argmax(v) if largest else np.argmin(v))
+
+
+def path_name(drive: Drive, hold: bool) -> str:
+    fw = drive.freewheel
+    fast = {"diode": "diode", "zener": "diode + Zener", "resistor": "diode + resistor",
+            "clamp": "clamp across the switch"}[fw.type]
+    if hold and split_decay(drive):
+        return "diode + bypass switch (slow decay)"
+    return fast + (" (slow decay)" if fw.type == "diode" else " (fast decay)")
+
+
+def loss_figures(drive: Drive, grid: CornerGrid, loss: HoldLosses) -> dict:
+    """The worst-corner hold powers as :class:`HoldResult` fields."""
+    k_fw = worst(loss.freewheel)
+    switch = np.broadcast_to(loss.switch, loss.freewheel.shape)
+    k_sw = worst(switch)
+    elements = {name: float(np.max(p)) for name, p in loss.elements().items() if np.any(p > 0)}
+    return dict(
+        freewheel_power_w=float(loss.freewheel[k_fw]), freewheel_power_corner=grid.label(k_fw),
+        freewheel_elements_w=elements,
+        switch_power_w=float(switch[k_sw]),
+        switch_conduction_w=float(np.max(loss.switch_conduction)),
+        switch_switching_w=float(np.max(loss.switch_switching)),
+        switch_power_corner=grid.label(k_sw), decay_path=path_name(drive, hold=True),
+    )
+
+
+def slow_hold_drive(drive: Drive) -> tuple[Drive, bool]:
+    """The same drive with split decay fitted (an ideal bypass, no lead): the hold takes
+    the slow path. A clamp board with no ``diode_drop`` gets :data:`ASSUMED_DIODE_DROP`;
+    the flag says so."""
+    fw = drive.freewheel
+    assumed = fw.diode_drop <= 0
+    slow_fw = dataclasses.replace(fw, split_decay=True, bypass_resistance=0.0, bypass_lead=0.0,
+                                  diode_drop=ASSUMED_DIODE_DROP if assumed else fw.diode_drop)
+    return dataclasses.replace(drive, freewheel=slow_fw), assumed
+
+
+def saving_figures(drive: Drive, res: PointResults, loss: HoldLosses, duty: float,
+                    rs: PointResults, ls: HoldLosses, d_slow: float, compare: int,
+                    assumed: bool) -> dict:
+    """The ``split_decay_saving`` object from the hold as designed (``res``, ``loss``,
+    ``duty``) and with the slow hold path (``rs``, ``ls``, ``d_slow``, ``compare``)."""
+    fast_element = {"zener": "zener", "resistor": "resistor", "clamp": "clamp"}[drive.freewheel.type]
+    return {
+        "freewheel_power_w": float(np.max(loss.freewheel) - np.max(ls.freewheel)),
+        "fast_element": fast_element,
+        "fast_element_power_w": float(np.max(getattr(loss, fast_element))),
+        "freewheel_power_split_w": float(np.max(ls.freewheel)),
+        "coil_power_change_w": float(np.max(rs.coil_power) - np.max(res.coil_power)),
+        "switch_power_change_w": float(np.max(ls.switch) - np.max(loss.switch)),
+        "duty_split": d_slow, "compare_ticks_split": compare,
+        "duty_change": d_slow - duty,
+        "ripple_split_a": float(np.max(rs.hold.ripple)),
+        "ripple_change_a": float(np.max(rs.hold.ripple) - np.max(res.hold.ripple)),
+        "assumed_diode_drop_v": ASSUMED_DIODE_DROP if assumed else None,
+    }
+
+
+def peak_ticks_for(drive: Drive, t_pull: float) -> int:
+    """Peak phase in scheduler ticks: the worst pull-in time x ``pull_in.margin``, rounded up,
+    plus one tick (a tick-based phase may start anywhere inside a tick); 0 when the
+    pull-in current is never reached."""
+    if not math.isfinite(t_pull):
+        return 0
+    return math.ceil(t_pull * drive.pull_in.margin * drive.board.tick.rate - 1e-9) + 1
+
+
+def pull_in_result(drive: Drive, grid: CornerGrid, res: PointResults, k_pull: int, t_pull: float,
+                   peak_ticks: int) -> PullInResult:
+    """The pull-in figures: the worst-corner time ``t_pull`` s (corner ``k_pull``), the
+    chosen peak, and the highest current at its end over the points of ``res``."""
+    return PullInResult(current_a=drive.pull_in.current, time_s=t_pull,
+                        worst_corner=grid.label(k_pull), margin=drive.pull_in.margin,
+                        peak_time_s=peak_ticks / drive.board.tick.rate, peak_ticks=peak_ticks,
+                        peak_end_current_max_a=float(np.max(res.peak_end_current)))
+
+
+def hold_spread(grid: CornerGrid, res: PointResults) -> dict:
+    """The hold's spread over the corners as :class:`~coildrive.design.result.HoldResult`
+    fields: lowest and highest mean current, ripple, coil power and the hottest coil."""
+    k_min = worst(res.hold.mean, largest=False)
+    k_max = worst(res.hold.mean)
+    k_hot = worst(res.coil_temp)
+    return dict(
+        min_mean_current_a=float(res.hold.mean[k_min]), min_corner=grid.label(k_min),
+        max_mean_current_a=float(res.hold.mean[k_max]), max_corner=grid.label(k_max),
+        ripple_a=float(np.max(res.hold.ripple)),
+        coil_power_w=float(np.max(res.coil_power)), coil_temp_c=float(res.coil_temp[k_hot]),
+        hottest_corner=grid.label(k_hot), discontinuous_corners=int(np.sum(res.hold.dcm)))
+
+
+def release_result(drive: Drive, grid: CornerGrid, res: PointResults) -> ReleaseResult:
+    """The release through the freewheel path from the top of the hold ripple, and the
+    lockout: wait for zero current -- and, with an armature, for it to be back on the
+    open stop -- in whole scheduler ticks plus one."""
+    k_rel = worst(res.release_time)
+    rating = drive.switch.max_voltage
+    settle = float(np.max(res.release_zero_time))
+    if res.armature is not None:
+        settle = max(settle, float(np.max(res.release_time)))
+    lockout = math.ceil(settle * drive.board.tick.rate - 1e-9) + 1 if math.isfinite(settle) else 0
+    return ReleaseResult(
+        freewheel=drive.freewheel.type, dropout_current_a=drive.release.current,
+        time_s=float(res.release_time[k_rel]), zero_time_s=float(np.max(res.release_zero_time)),
+        worst_corner=grid.label(k_rel), lockout_ticks=lockout,
+        peak_switch_voltage_v=float(np.max(res.peak_switch_voltage)),
+        switch_limit_v=rating * drive.switch.derating, switch_rating_v=rating,
+        energy_j=float(np.max(res.release_energy)),
+    )
+
+
+def adc_thresholds(drive: Drive, res: PointResults, min_mean_current: float) -> AdcThresholds:
+    """Current thresholds as ADC codes: the over-current trip above the highest normal
+    current (end of the peak or top of the hold ripple), open load below the lowest hold
+    mean, and the supply-sense codes of the supply limits."""
+    board = drive.board
+    adc = board.adc
+    vpa = board.sense.resistance * board.sense.gain
+    over_a = OVER_CURRENT_FACTOR * max(float(np.max(res.peak_end_current)), float(np.max(res.hold.i_max)))
+    open_a = OPEN_LOAD_FACTOR * min_mean_current
+    return AdcThresholds(
+        volts_per_amp=vpa, full_scale_current_a=adc.reference / vpa,
+        pull_in_code=adc_code(drive.pull_in.current * vpa, adc.reference, adc.bits),
+        hold_code=adc_code(drive.hold.current * vpa, adc.reference, adc.bits),
+        over_current_code=adc_code(over_a * vpa, adc.reference, adc.bits), over_current_a=over_a,
+        open_load_code=adc_code(open_a * vpa, adc.reference, adc.bits), open_load_a=open_a,
+        supply_min_code=adc_code(drive.supply.min / board.supply_sense.divider, adc.reference, adc.bits),
+        supply_max_code=adc_code(drive.supply.max / board.supply_sense.divider, adc.reference, adc.bits),
+    )

@@ -1,0 +1,392 @@
+"""The Design result: plain data that every output (table, JSON, header, plot) reads.
+
+Nothing here computes physics; :func:`coildrive.design.design` fills it in. SI units,
+temperatures in degC; a figure names the corner it came from.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass, field
+
+from .. import __version__
+from ..config import Drive
+from ..jsondoc import document_head, json_ready
+
+#: What the freewheel elements are called in tables and check details.
+ELEMENT_NAMES = {"diode": "freewheel diode", "zener": "Zener", "resistor": "freewheel resistor",
+                 "clamp": "clamp", "bypass": "bypass switch"}
+
+
+@dataclass(frozen=True)
+class Thresholds:
+    """A current-mode setting. Currents in A (code x LSB), times in s.
+
+    ``lower_code`` is 0 for the off-time control; ``off_*`` are 0 for hysteretic.
+    """
+
+    control: str
+    lsb_a: float
+    lower_code: int
+    upper_code: int
+    off_time_s: float
+    off_prescaler: int
+    off_ticks: int
+    off_time_target_s: float
+    delay_s: float
+    sized: bool
+
+    @property
+    def lower_a(self) -> float:
+        return self.lower_code * self.lsb_a
+
+    @property
+    def upper_a(self) -> float:
+        return self.upper_code * self.lsb_a
+
+
+@dataclass(frozen=True)
+class CurrentModeResult:
+    """The ``current_mode`` object of the design JSON (SI, Hz, degC)."""
+
+    control: str
+    sense_position: str
+    code_current_a: float
+    lower_code: int | None
+    lower_a: float | None
+    upper_code: int
+    upper_a: float
+    band_codes: int | None
+    band_a: float | None
+    off_time_s: float | None
+    off_time_target_s: float | None
+    off_prescaler: int | None
+    off_ticks: int | None
+    sized_from_frequency: bool
+    sense_delay_s: float
+    nominal_frequency_hz: float
+    min_frequency_hz: float
+    min_frequency_corner: str
+    max_frequency_hz: float
+    max_frequency_corner: str
+    allowed_min_frequency_hz: float
+    allowed_max_frequency_hz: float
+    allowed_max_source: str
+    min_duty: float
+    max_duty: float
+    shortest_segment_s: float
+    regulated_corners: int
+    corners: int
+
+
+@dataclass(frozen=True)
+class Check:
+    """One design check. ``severity`` is ``"error"`` (fails the design) or ``"warning"``."""
+
+    name: str
+    ok: bool
+    detail: str
+    severity: str = "error"
+
+
+@dataclass(frozen=True)
+class Corner:
+    """Figures at one operating corner. SI units, temperatures in degC."""
+
+    label: str
+    supply_v: float
+    ambient_c: float
+    coil_temp_c: float
+    resistance_ohm: float
+    inductance_h: float
+    pull_in_time_s: float
+    peak_end_current_a: float
+    hold_mean_current_a: float
+    hold_ripple_a: float
+    hold_rms_current_a: float
+    hold_conduction: str
+    coil_power_w: float
+    release_time_s: float
+    release_zero_time_s: float
+    peak_switch_voltage_v: float
+    release_energy_j: float
+    armature: dict | None = None
+    freewheel_power_w: float = math.nan
+    switch_power_w: float = math.nan
+
+
+#: Per-corner keys added with an ``[armature]`` (flattened into each JSON corner).
+ARMATURE_CORNER_KEYS = (
+    "seat_time_s", "impact_time_s", "dip_current_a", "dip_time_s", "dip_depth_a",
+    "start_time_s", "bounces", "release_unlatch_time_s", "release_open_time_s",
+    "start_current_a", "stay_current_a", "stroke_current_a", "hold_force_current_a",
+    "hold_force_margin", "hold_lift_m", "armature_status", "release_status",
+)
+
+
+@dataclass(frozen=True)
+class ArmatureResult:
+    """The moving armature across the corners (``design --json`` key ``armature``).
+
+    Fit: ``equivalent_gap_m`` (g0) and ``force_constant_h_m`` (K) of
+    ``L(x) = K / (x + g0)``. Currents (A) the mechanics need, largest over the corners
+    (the lowest inductance of the tolerance band): ``start_current_a`` (off the open
+    stop), ``stroke_current_a`` (over the whole stroke, at gap ``stroke_current_gap_m``),
+    ``stay_current_a`` (to stay seated; also the predicted drop-out). Margins are the
+    file's (or derived) current over that need. Times in s, worst corner named.
+    """
+
+    inductance_open_h: float
+    inductance_closed_h: float
+    stroke_m: float
+    equivalent_gap_m: float
+    force_constant_h_m: float
+    slope_open_h_m: float
+    slope_closed_h_m: float
+    current_margin: float
+    derived: list[str]
+    start_current_a: float
+    stroke_current_a: float
+    stroke_current_gap_m: float
+    stay_current_a: float
+    dropout_current_a: float
+    pull_in_current_margin: float
+    hold_current_margin: float
+    seat_time_s: float
+    seat_corner: str
+    seat_time_min_s: float
+    dip_current_a: float
+    dip_time_s: float
+    dip_current_min_a: float
+    release_open_time_s: float
+    release_corner: str
+    hold_force_current_a: float
+    hold_force_margin: float
+    hold_force_corner: str
+    hold_force_basis: str
+    hottest_low_supply_corner: str
+    hottest_low_supply_margin: float
+    hold_lift_max_m: float
+    seated_corners: int
+    opened_corners: int
+    corners: int
+
+
+@dataclass(frozen=True)
+class PullInResult:
+    """Pull-in: worst-corner time to the pull-in current and the chosen peak duration."""
+
+    current_a: float
+    time_s: float
+    worst_corner: str
+    margin: float
+    peak_time_s: float
+    peak_ticks: int
+    peak_end_current_max_a: float
+
+
+@dataclass(frozen=True)
+class HoldResult:
+    """Hold: the duty as the timer makes it and the currents it gives across corners.
+
+    Heat outside the coil (W, :mod:`coildrive.model.losses`): ``freewheel_power_w`` is
+    the freewheel path's total at its worst corner, ``freewheel_elements_w`` each
+    element's largest over the corners, ``switch_power_w`` conduction + switching
+    estimate at the switch's worst corner; ``decay_path`` names the hold's freewheel
+    path. ``split_decay_saving`` says what split decay would change (``None`` with a
+    diode path or with split decay fitted); see docs/design-method.md.
+    """
+
+    mode: str
+    current_a: float
+    frequency_hz: float
+    duty: float
+    compare_ticks: int
+    min_mean_current_a: float
+    min_corner: str
+    max_mean_current_a: float
+    max_corner: str
+    ripple_a: float
+    current_step_a: float
+    coil_power_w: float
+    coil_temp_c: float
+    hottest_corner: str
+    discontinuous_corners: int
+    freewheel_power_w: float = math.nan
+    freewheel_power_corner: str = ""
+    freewheel_elements_w: dict = field(default_factory=dict)
+    switch_power_w: float = math.nan
+    switch_conduction_w: float = math.nan
+    switch_switching_w: float = math.nan
+    switch_power_corner: str = ""
+    decay_path: str = ""
+    split_decay_saving: dict | None = None
+    current_mode: CurrentModeResult | None = None
+    thresholds: Thresholds | None = None
+
+
+@dataclass(frozen=True)
+class SplitDecayResult:
+    """Split decay: the hold takes the slow path, the release the fast one.
+
+    ``bypass_lead_s`` is the board's ``bypass_lead`` (s; > 0: the bypass opens before the
+    main switch's final turn-off, < 0: after it); as PWM-timer counts (one count =
+    ``1 / count_rate_hz`` s) ``lead_counts`` before the final turn-off (rounded up) or
+    ``lag_counts`` after it (rounded down), one of them zero. ``on_time_counts`` is the
+    hold's on-time, within which a leading bypass must open.
+    """
+
+    hold_path: str
+    release_path: str
+    bypass_resistance_ohm: float
+    bypass_lead_s: float
+    count_rate_hz: float
+    lead_counts: int
+    lag_counts: int
+    on_time_counts: int
+
+
+@dataclass(frozen=True)
+class ReleaseResult:
+    """Release from the top of the hold ripple through the freewheel path."""
+
+    freewheel: str
+    dropout_current_a: float
+    time_s: float
+    zero_time_s: float
+    worst_corner: str
+    lockout_ticks: int
+    peak_switch_voltage_v: float
+    switch_limit_v: float
+    switch_rating_v: float
+    energy_j: float
+
+
+@dataclass(frozen=True)
+class TimerResult:
+    """PWM timer registers. ``prescaler`` and ``period_ticks`` are divide ratio and counts."""
+
+    clock_hz: float
+    bits: int
+    prescaler: int
+    period_ticks: int
+    compare_ticks: int
+    frequency_hz: float
+    target_hz: float
+    frequency_error: float
+
+
+@dataclass(frozen=True)
+class AdcThresholds:
+    """Current thresholds as ADC codes of the current-sense channel, and their currents (A)."""
+
+    volts_per_amp: float
+    full_scale_current_a: float
+    pull_in_code: int
+    hold_code: int
+    over_current_code: int
+    over_current_a: float
+    open_load_code: int
+    open_load_a: float
+    supply_min_code: int
+    supply_max_code: int
+
+
+@dataclass(frozen=True)
+class DutyTable:
+    """Supply-compensated hold: compare value for each supply-sense ADC code (ascending).
+
+    Firmware takes the last entry whose code is <= the measured code (the first entry
+    below it); each entry holds the current at every corner up to the next entry's supply.
+    """
+
+    supply_v: list[float]
+    adc_codes: list[int]
+    compare_ticks: list[int]
+
+
+@dataclass(frozen=True)
+class Design:
+    """One design result: every output (table, JSON, header, plot) is made from this."""
+
+    drive: Drive
+    pull_in: PullInResult
+    hold: HoldResult
+    release: ReleaseResult
+    timer: TimerResult
+    adc: AdcThresholds
+    duty_table: DutyTable
+    corners: list[Corner]
+    nominal: Corner
+    checks: list[Check]
+    cautions: list[str]
+    monte_carlo: dict | None = None
+    version: str = __version__
+    input_hash: str = ""
+    worst_corner_index: int = 0
+    actuation_points: tuple = ()
+    armature: ArmatureResult | None = None
+    split_decay: SplitDecayResult | None = None
+
+    @property
+    def ok(self) -> bool:
+        """True when no error-severity check failed."""
+        return all(c.ok for c in self.checks if c.severity == "error")
+
+    @property
+    def failed(self) -> list[Check]:
+        return [c for c in self.checks if not c.ok and c.severity == "error"]
+
+    def to_dict(self) -> dict:
+        """Plain JSON-ready dict (the ``design --json`` document)."""
+        hold = asdict(self.hold)
+        current_mode = hold.pop("current_mode")
+        hold.pop("thresholds")
+        out = {
+            **document_head(self.drive, self.version, self.input_hash),
+            "ok": self.ok,
+            "pull_in": asdict(self.pull_in),
+            "hold": hold,
+            "release": asdict(self.release),
+            "timer": asdict(self.timer),
+            "adc": asdict(self.adc),
+            "duty_table": asdict(self.duty_table),
+            "nominal": asdict(self.nominal),
+            "corners": [_corner_dict(c) for c in self.corners],
+            "checks": [asdict(c) for c in self.checks],
+            "cautions": list(self.cautions),
+        }
+        out["nominal"] = _corner_dict(self.nominal)
+        if self.armature is not None:
+            out["armature"] = asdict(self.armature)
+        if self.split_decay is not None:
+            out["split_decay"] = asdict(self.split_decay)
+        if current_mode is not None:
+            out["current_mode"] = current_mode
+        if self.monte_carlo is not None:
+            out["monte_carlo"] = self.monte_carlo
+        return json_ready(out)
+
+
+def _corner_dict(c: Corner) -> dict:
+    """A corner as JSON: the armature figures, when there are any, flattened in."""
+    d = asdict(c)
+    arm = d.pop("armature")
+    if arm is not None:
+        d.update(arm)
+    return d
+
+
+@dataclass(frozen=True)
+class ActuationPoint:
+    """An operating point whose actuation the plot draws (``design_waveforms``): its
+    name (``"nominal"``, ``"worst"``) and label, V, degC, tolerance factors, and the hold
+    length shown (s)."""
+
+    name: str
+    label: str
+    supply_v: float
+    coil_temp_c: float
+    r_factor: float
+    l_factor: float
+    hold_time_s: float

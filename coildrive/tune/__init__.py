@@ -1,0 +1,12 @@
+"""The tuning stage: the lowest safe hold, offline from the model and live on the bench.
+
+* ``sweep``: the offline sweep over realisable PWM frequencies x hold levels x corners
+  (``coildrive tune DRIVE``); ``report`` and ``plot`` show it;
+* ``live``: live tuning over a device link (``coildrive tune DRIVE --port``), in three
+  parts -- ``live_model`` (the model at the bench point and the scaling to the worst
+  corner), ``dropout`` (the judge: did the armature drop out in a captured actuation?),
+  ``search`` (the duty search) -- driven by ``live.LiveTuner`` (the device steps);
+  ``live_report`` shows it.
+
+Imports run one way: ``design``, ``bench`` and ``model`` below, ``cli`` above.
+"""
