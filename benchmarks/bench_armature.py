@@ -3,7 +3,7 @@
 1,000 operating points of the locker-latch example (supply, coil temperature and coil
 tolerances drawn at random, mechanics varied +/-20 %) go through
 
-* the batched model (:func:`coildrive.model.armature.pull_in` and ``release``: one
+* the batched model (:func:`coildrive.model.armature_runs.pull_in` and ``release``: one
   vectorised Dormand-Prince integration over all points), and
 * a plain per-point loop of scipy ``solve_ivp`` with stop events
   (:func:`coildrive.model.armature_sim.pull_in_reference` / ``release_reference``),
@@ -17,7 +17,7 @@ A second case is one actuation with a drop-out: the locker latch at 12 V, 25 deg
 0.0288 s, then a hold at duty 0.45, 25 kHz for 0.037 s, too weak to keep the armature
 seated -- so the armature is integrated through every PWM edge, one short flight per half
 period (what ``coildrive emulate`` and live tuning compute on every drop-out). It runs
-through the numpy batch of one point (``armature.SINGLE_POINT_SCALAR = False``, the old
+through the numpy batch of one point (``armature_flight.SINGLE_POINT_SCALAR = False``, the old
 path) and through the float-by-float ``fly_point`` (the new default), alternately, best
 of three each. Targets: new >= 10x faster; largest difference of current, gap, velocity
 and event times <= 1e-9 relative.
@@ -38,8 +38,9 @@ ROOT = Path(__file__).resolve().parent.parent
 sys.path.insert(0, str(ROOT))
 
 from coildrive.config import load_drive  # noqa: E402
-from coildrive.model import armature  # noqa: E402
-from coildrive.model.armature import ArmatureParams, params_from_loop, pull_in, release  # noqa: E402
+from coildrive.model import armature_flight as armature  # noqa: E402
+from coildrive.model.armature import ArmatureParams, params_from_loop  # noqa: E402
+from coildrive.model.armature_runs import pull_in, release  # noqa: E402
 from coildrive.model.armature_sim import pull_in_reference, release_reference  # noqa: E402
 from coildrive.model.circuit import loop  # noqa: E402
 from coildrive.model.waveform import armature_actuation  # noqa: E402

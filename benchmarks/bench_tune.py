@@ -1,7 +1,7 @@
 """Hold-tuning speed target, measured (not a timed test).
 
 Target: 10^5 sweep settings x every corner (24 for the demo valve) in under 1 s, for
-the whole offline sweep of :func:`coildrive.tune.tune` -- realisable frequencies, duty
+the whole offline sweep of :func:`coildrive.tune.sweep.tune` -- realisable frequencies, duty
 search at the corners with self-heating, evaluation of every setting at every corner,
 constraints and ranking (best of three runs, one process).
 

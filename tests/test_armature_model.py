@@ -26,8 +26,10 @@ import numpy as np
 import pytest
 
 from coildrive.model import magnet
-from coildrive.model.armature import (DP_B, DP_B4, DP_E, NO_START, OPENED, SEATED, STALLED,
-                                      ArmatureParams, _A, hold_force_current, pull_in, release)
+from coildrive.model.armature import (NO_START, OPENED, SEATED, STALLED, ArmatureParams,
+                                      hold_force_current)
+from coildrive.model.armature_flight import _A, DP_B, DP_B4, DP_E
+from coildrive.model.armature_runs import pull_in, release
 from coildrive.model.armature_sim import pull_in_reference, release_reference, simulate
 from coildrive.model.rl import rise_current, rise_time
 
@@ -300,7 +302,7 @@ def test_hold_force_current_rms_or_ripple_bottom():
 def test_heavily_damped_armature_uses_the_stiff_integrator_and_matches_radau():
     """A dashpot-damped armature (damping/mass ~ 2e4 /s) is stiff: the batch steps it
     with the Rosenbrock 2(3) pair; scipy's implicit Radau is the reference."""
-    from coildrive.model.armature import fly, is_stiff
+    from coildrive.model.armature_flight import fly, is_stiff
 
     p = latch(damping=400.0)
     assert is_stiff(p, 0.5)[0] and not is_stiff(latch(), 0.5)[0]

@@ -1,4 +1,4 @@
-"""The one-point integrator (``armature.fly_point``) against the numpy batch.
+"""The one-point integrator (``armature_flight.fly_point``) against the numpy batch.
 
 A batch of one point is integrated on Python floats (numpy's per-call overhead on
 1-element arrays made a drop-out actuation take seconds); it is the same algorithm, so it
@@ -7,7 +7,7 @@ must give the batch's numbers. Two ways to get the batch's numbers for one point
 * put the point into a batch of two: every numpy operation of ``fly`` is element-wise
   and every point has its own step control, so point 0 of the pair is what a numpy batch
   of one gives;
-* ``armature.SINGLE_POINT_SCALAR = False`` (monkeypatched) forces the numpy batch even
+* ``armature_flight.SINGLE_POINT_SCALAR = False`` (monkeypatched) forces the numpy batch even
   for one point -- the only way through ``simulate`` and ``armature_actuation``.
 
 Tolerances: 1e-9 relative on every figure (the explicit Dormand-Prince path is in fact
@@ -27,9 +27,10 @@ import numpy as np
 import pytest
 
 from coildrive.config import load_drive
-from coildrive.model import armature
-from coildrive.model.armature import (ArmatureParams, fly, fly_point, OnePoint, pull_in, release,
-                                      SEATED)
+from coildrive.model import armature, armature_flight
+from coildrive.model.armature import SEATED, ArmatureParams
+from coildrive.model.armature_flight import OnePoint, fly, fly_point
+from coildrive.model.armature_runs import pull_in, release
 from coildrive.model.waveform import armature_actuation
 
 from test_armature_model import latch
@@ -172,7 +173,7 @@ def actuation(case: str, method: str = "numpy"):
 @pytest.mark.parametrize("case", DROPOUTS)
 def test_dropout_actuation_equals_the_numpy_batch(case, monkeypatch):
     new = actuation(case)
-    monkeypatch.setattr(armature, "SINGLE_POINT_SCALAR", False)
+    monkeypatch.setattr(armature_flight, "SINGLE_POINT_SCALAR", False)
     old = actuation(case)
     hold = (new.time > PEAK) & (new.time < new.events["off"])
     assert np.max(new.position[hold]) > 0, "the armature lifts during the hold (a drop-out case)"
@@ -221,7 +222,7 @@ def test_a_second_freewheel_path_uses_its_own_constants(monkeypatch):
                         stop=lambda r: r.state == "open" and not r.live)
 
     new = run()
-    monkeypatch.setattr(armature, "SINGLE_POINT_SCALAR", False)
+    monkeypatch.setattr(armature_flight, "SINGLE_POINT_SCALAR", False)
     old = run()
     assert new.time.size == old.time.size
     for name in ("time", "current", "position"):

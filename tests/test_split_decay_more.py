@@ -41,7 +41,8 @@ from coildrive.design.corners import corner_grid
 from coildrive.design.hold_current import current_losses, evaluate_current
 from coildrive.design import design
 from coildrive.design.evaluate import evaluate
-from coildrive.model.armature import late_release, params_from_loop, release
+from coildrive.model.armature import params_from_loop
+from coildrive.model.armature_runs import late_release, release
 from coildrive.model.armature_sim import release_reference, simulate
 from coildrive.model.circuit import loop
 from conftest import EXAMPLES, require_tool, run_cli

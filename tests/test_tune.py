@@ -3,7 +3,7 @@
 * every realisable frequency, each with its longest period: against a brute-force
   enumeration of every prescaler x period of the timer (the timer arithmetic
   ``f = clock / (prescaler x period)``);
-* sweep figures against :func:`coildrive.evaluate.evaluate` and
+* sweep figures against :func:`coildrive.design.evaluate.evaluate` and
   :func:`coildrive.model.pwm.pwm_steady_state` at every corner: they agree within the
   self-heating tolerance of model/thermal.py (1e-4 K, which moves a current by about
   ``alpha x 1e-4`` = 4e-7 relative, IEC 60028 copper);

@@ -49,8 +49,9 @@ from coildrive.config import load_drive
 from coildrive.design import design
 from coildrive.errors import InputError
 from coildrive.model.pwm import pwm_steady_state
-from coildrive.tune.live import (LiveOptions, LiveTuner, bench_point, judge_actuation,
-                                 model_dropout_duty, model_stay_current, recommend, settled_value)
+from coildrive.tune.dropout import judge_actuation, settled_value
+from coildrive.tune.live import LiveOptions, LiveTuner
+from coildrive.tune.live_model import bench_point, model_dropout_duty, model_stay_current, recommend
 
 LATCH = EXAMPLES / "locker-latch-12v.toml"
 TIMEOUT = 60.0

@@ -6,7 +6,7 @@ or the device's SUPPLY events read through the board's supply divider), else the
 drive's nominal supply and the coil's reference temperature clipped into the ambient
 range -- with the design's peak time, hold duty and hold frequency. The coil is taken
 to be at that temperature throughout (a bench actuation, not the design's settled hot
-coil). Closed-form figures come from :func:`coildrive.evaluate.evaluate`; with an
+coil). Closed-form figures come from :func:`coildrive.design.evaluate.evaluate`; with an
 ``[armature]`` the times to a current come from the model waveform
 (:func:`coildrive.model.waveform.actuation`) and the seat from the armature model.
 

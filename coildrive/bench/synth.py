@@ -15,7 +15,7 @@ The chain per sample, at the board's ADC sample rate ``f_s``:
    sees ``i`` while the switch is on and nothing while it is off;
 3. volts ``V = i R_sense gain``, plus Gaussian noise of ``noise_codes`` codes (one sigma),
    then the code ``floor(V / V_ref 2^bits)`` clipped to ``0 .. 2^bits - 1`` (the design's
-   ADC convention, :func:`coildrive.design._adc_code`).
+   ADC convention, :func:`coildrive.design.figures.adc_code`).
 
 The steps are separate functions (:func:`actuation_waveform`, :func:`sense_current`,
 :func:`current_codes`, :func:`actuation_events`) so that the virtual bench device
@@ -168,7 +168,7 @@ def actuation_events(w: Waveform, t_on: float, sample_rate: float,
 def operating_point(drive: Drive, supply: float | None, coil_temp: float | None) -> tuple[float, float]:
     """``(supply V, coil temperature degC)``: the given values, or the drive's nominal supply
     and its reference temperature clipped into the ambient range (as
-    :func:`coildrive.corners.nominal_point`)."""
+    :func:`coildrive.design.corners.nominal_point`)."""
     nominal = nominal_point(drive)
     return (float(nominal.supply[0]) if supply is None else float(supply),
             float(nominal.ambient[0]) if coil_temp is None else float(coil_temp))
@@ -190,7 +190,7 @@ def synth_capture(drive: Drive, peak_time: float, duty: float, frequency: float,
     peak_time : s of full-on; duty : hold PWM duty 0..1; frequency : hold PWM Hz.
     supply : V (default: the drive's nominal supply).
     coil_temp : degC, the coil's temperature throughout (default: its reference
-        temperature clipped into the ambient range, as :func:`coildrive.corners.nominal_point`).
+        temperature clipped into the ambient range, as :func:`coildrive.design.corners.nominal_point`).
     hold_time : s of hold per actuation; actuations : how many.
     idle_time : s of zero current before the first actuation, between actuations (from
         the end of one release to the next switch-on) and after the last.

@@ -140,7 +140,7 @@ def _live(drive: Path, board: Optional[str], port: str, as_json: bool, header: O
           margin: Optional[float], baud: Optional[int], capture: Optional[Path], repeats: Optional[int],
           supply: Optional[str], coil_temp: Optional[str], hold_time: Optional[str],
           resolution: Optional[str], detect: Optional[str]) -> None:
-    """``tune --port``: the live procedure of :mod:`coildrive.tune_live` over a DeviceLink."""
+    """``tune --port``: the live procedure of :mod:`coildrive.tune.live` over a DeviceLink."""
     from datetime import datetime, timezone
 
     from ..bench.link import DeviceLink, LinkError

@@ -124,8 +124,8 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
     path), with a late bypass decaying through ``lp`` first (:func:`late_release`)."""
     import dataclasses
 
-    from ..model.armature import (hold_force_current, late_release, params_from_loop,
-                                 peak_current_closed_form, pull_in, release)
+    from ..model.armature import hold_force_current, params_from_loop
+    from ..model.armature_runs import late_release, peak_current_closed_form, pull_in, release
     from ..model.magnet import stroke_current
 
     shape = np.shape(lp.v_on)

@@ -210,7 +210,7 @@ def choose_thresholds(drive: Drive, grid: CornerGrid) -> Thresholds:
 def evaluate_current(drive: Drive, th: Thresholds, supply, ambient, r_factor, l_factor,
                      peak_time) -> tuple[PointResults, CurrentModeSteadyState]:
     """Every design figure at the points with the current-mode hold ``th`` (the
-    counterpart of :func:`coildrive.evaluate.evaluate`; the release starts from the
+    counterpart of :func:`coildrive.design.evaluate.evaluate`; the release starts from the
     top of the ripple). With split decay the hold (thresholds, switching, heat) takes
     the slow path and the release the fast one, as in voltage mode."""
     supply, ambient, r_factor, l_factor = np.broadcast_arrays(

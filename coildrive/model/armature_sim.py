@@ -30,9 +30,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from . import armature as _armature
+from . import armature_flight as _flight
 from .armature import (BOUND, MAX_BOUNCES, OPEN, REST_FRACTION, SEAT, ZERO, ArmatureParams,
-                       OnePoint, _hermite, _hermite5, _Rhs, _time_bound, fly, fly_point, is_stiff)
+                       time_bound)
+from .armature_flight import OnePoint, _hermite, _hermite5, _Rhs, fly, fly_point, is_stiff
 from .rl import decay_current, decay_integrals, decay_time, rise_current, rise_integrals, rise_time
 
 #: Default scipy tolerances of the reference path (relative; absolute = rtol x scale).
@@ -184,7 +185,7 @@ def _rest_segment(run: _Run, t_end: float, on: bool, points: int, stop) -> None:
 
 
 def _fly_point(run: _Run, t_end: float, on: bool, rtol: float, dense: int):
-    """:func:`_fly_numpy` on Python floats (:func:`~coildrive.model.armature.fly_point`),
+    """:func:`_fly_numpy` on Python floats (:func:`~coildrive.model.armature_flight.fly_point`),
     with the same dense fill: the same samples, without numpy's per-call overhead on
     1-element arrays (a PWM hold in which the armature lifts flies once per half period)."""
     pt = run.pt
@@ -214,7 +215,7 @@ def _fly_point(run: _Run, t_end: float, on: bool, rtol: float, dense: int):
 
 
 def _fly_numpy(run: _Run, t_end: float, on: bool, rtol: float, dense: int):
-    if _armature.SINGLE_POINT_SCALAR:
+    if _flight.SINGLE_POINT_SCALAR:
         return _fly_point(run, t_end, on, rtol, dense)
     pt = run.pt
     fl = fly(pt.p, np.array([run.t]), run.y[:, None], np.array([t_end]), np.array([True]),
@@ -437,7 +438,7 @@ class PullInReference:
 def pull_in_reference(p: ArmatureParams, method: str = "DOP853", rtol: float | None = None,
                       points: int = 40) -> PullInReference:
     """Switch on from rest at the open stop until the armature rests on the seat (or the
-    same bound as :func:`coildrive.model.armature.pull_in`)."""
+    same bound as :func:`coildrive.model.armature_runs.pull_in`)."""
     pt = _Point(p)
     i_inf = pt.v_on / pt.r_on
     if not i_inf > pt.i_start:
@@ -446,7 +447,7 @@ def pull_in_reference(p: ArmatureParams, method: str = "DOP853", rtol: float | N
         return PullInReference(False, math.inf, nan, nan, math.inf, empty)
     t_start = float(rise_time(pt.i_start, 0.0, pt.v_on, pt.r_on, pt.l_open))
     f_inf = 0.5 * i_inf**2 * pt.l_closed * pt.beta / (1 + pt.beta * pt.stroke) ** 2 - (pt.preload + pt.load)
-    bound = float(_time_bound(t_start, pt.l_closed, pt.r_on, pt.mass, pt.stroke, pt.damping, f_inf))
+    bound = float(time_bound(t_start, pt.l_closed, pt.r_on, pt.mass, pt.stroke, pt.damping, f_inf))
     tr = simulate(p, [(bound, True)], method=method, rtol=rtol, points=points,
                   stop=lambda r: r.state == "seated")
     ev = tr.events
@@ -471,10 +472,10 @@ class ReleaseReference:
 def release_reference(p: ArmatureParams, i_off: float, method: str = "DOP853",
                       rtol: float | None = None, points: int = 40) -> ReleaseReference:
     """Turn off ``i_off`` A with the armature seated; run until it rests on the open stop
-    and the current is zero (or the bound of :func:`coildrive.model.armature.release`)."""
+    and the current is zero (or the bound of :func:`coildrive.model.armature_runs.release`)."""
     pt = _Point(p)
     t_un = float(decay_time(min(pt.i_stay, i_off), i_off, pt.r_off, pt.v_off, pt.l_closed)) if i_off > pt.i_stay else 0.0
-    bound = float(_time_bound(t_un, pt.l_closed, pt.r_off, pt.mass, pt.stroke, pt.damping,
+    bound = float(time_bound(t_un, pt.l_closed, pt.r_off, pt.mass, pt.stroke, pt.damping,
                               pt.preload + pt.load))
     tr = simulate(p, [(bound, False)], state="seated", flux=pt.l_closed * i_off, method=method,
                   rtol=rtol, points=points,

@@ -249,7 +249,7 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     current decaying slowly until then; ``bypass_on`` and ``events["bypass_open"]`` say
     when.
     """
-    from .armature import params_from_loop, _time_bound
+    from .armature import params_from_loop, time_bound
     from .armature_sim import simulate
 
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
@@ -283,7 +283,7 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     i_max = float(p.v_on[0] / p.r_on[0])
     t_un = float(decay_time(min(float(p.stay_current[0]), i_max), i_max, p.r_off[0], p.v_off[0],
                             p.l_closed[0]))
-    bound = float(_time_bound(t_un, p.l_closed[0], p.r_off[0], p.mass[0], p.stroke[0],
+    bound = float(time_bound(t_un, p.l_closed[0], p.r_off[0], p.mass[0], p.stroke[0],
                               p.damping[0], p.preload[0] + p.load[0]))
 
     def release_segments(t_cut):

@@ -55,22 +55,16 @@ import numpy as np
 
 from ..config import Drive
 from ..errors import InputError
+from .dropout import Judgement, judge_actuation
+from .failures import LiveFailure
+from .live_model import (HOLD_SETTLE_TAUS, BenchPoint, LiveRecommendation, bench_point,
+                         default_hold_time, hold_figures, model_dropout_duty, model_stay_current,
+                         recommend)
+from .search import RepeatResult, repeat_result, search_dropout
 
 #: Wall-clock time without new samples, after the OFF and the current back at zero,
 #: that ends an actuation's stream (s; the device may stream only what it recorded).
 QUIET_S = 0.15
-#: Hold length in multiples of the slowest time constant of the PWM-averaged hold
-#: (our choice: the current settles to e^-10 of its step, and a near-threshold armature
-#: has time to lift).
-HOLD_SETTLE_TAUS = 10.0
-#: A hold-current rise must exceed this many sigmas of the averaged current's noise.
-RISE_MIN_CONFIDENCE = 8.0
-#: ... and at least this many ADC codes (our choice: well above quantisation).
-RISE_MIN_CODES = 2.0
-#: ... and this fraction of the model's hold ripple (aliasing of an unresolved PWM).
-RISE_RIPPLE_FRACTION = 0.25
-#: The averaging window of the hold current covers at least this many samples.
-RISE_WINDOW_SAMPLES = 32
 #: Slack on the device's peak duration, in samples, on top of one scheduler tick.
 PEAK_SLACK_SAMPLES = 2
 #: Poll interval while the device answers BUSY, s.
@@ -80,19 +74,6 @@ PRE_SAMPLES = 200
 
 DETECTIONS = ("auto", "switch", "signature")
 """How drop-out is detected: the position switch when there is one, or as asked."""
-
-FAILURES = ("stuck", "drops_at_design", "no_dropout", "open_coil", "over_current",
-            "peak_time", "refused", "link", "interrupted")
-"""Failure codes of a live tuning (see :class:`LiveFailure`)."""
-
-
-class LiveFailure(Exception):
-    """The procedure cannot go on; ``code`` is one of :data:`FAILURES`."""
-
-    def __init__(self, code: str, message: str):
-        super().__init__(message)
-        self.code = code
-        self.message = message
 
 
 # --------------------------------------------------------------------------- options
@@ -150,341 +131,6 @@ class LiveOptions:
             raise InputError("--timeout", "", f"{self.timeout:g} s must be greater than zero")
 
 
-# --------------------------------------------------------------------------- the model at the bench
-@dataclass(frozen=True)
-class BenchPoint:
-    """Where the bench runs: bus voltage V and coil temperature degC, and where each
-    figure came from."""
-
-    supply_v: float
-    supply_from: str
-    coil_temp_c: float
-    coil_temp_from: str
-
-
-def bench_point(drive: Drive, supply: float | None = None, coil_temp: float | None = None,
-                supply_codes: list[int] | None = None, adc_bits: int | None = None,
-                temperatures_mc: list[int] | None = None) -> BenchPoint:
-    """The bench operating point: ``supply`` V (else the median of the device's SUPPLY
-    codes through the board's divider, else ``supply.nominal``) and ``coil_temp`` degC
-    (else the median of the device's TEMPERATURE events, milli-degC, else the coil's
-    reference temperature clipped into the ambient range)."""
-    from ..bench.check import supply_from_codes
-    from ..design.corners import nominal_point
-
-    nom = nominal_point(drive)
-    if supply is not None:
-        v, v_from = float(supply), "--supply"
-    elif supply_codes:
-        v = supply_from_codes(drive, supply_codes, adc_bits)
-        v_from = f"device SUPPLY events ({len(supply_codes)}, through the board's divider)"
-    else:
-        v, v_from = float(nom.supply[0]), "drive file: supply.nominal"
-    if coil_temp is not None:
-        t, t_from = float(coil_temp), "--coil-temp"
-    elif temperatures_mc:
-        t = float(np.median(temperatures_mc)) / 1000.0
-        t_from = f"device TEMPERATURE events ({len(temperatures_mc)})"
-    else:
-        t, t_from = float(nom.ambient[0]), "drive file: coil.reference_temp within the ambient range"
-    return BenchPoint(v, v_from, t, t_from)
-
-
-@dataclass(frozen=True)
-class HoldFigures:
-    """The model's seated hold at the bench point for some duties (arrays): the current
-    that counts for the force (``force_a``: RMS, or the ripple bottom where the armature
-    could lift within a period; the mean without an ``[armature]``), ``mean_a``,
-    ``ripple_a`` (peak-to-peak), and ``tau_s`` (time constant of the PWM-averaged
-    current, ``L / (D R_on + (1 - D) R_off)``)."""
-
-    duty: np.ndarray
-    force_a: np.ndarray
-    mean_a: np.ndarray
-    ripple_a: np.ndarray
-    tau_s: np.ndarray
-
-
-def hold_figures(drive: Drive, point: BenchPoint, duty, frequency: float) -> HoldFigures:
-    """:class:`HoldFigures` of a seated hold at ``duty`` (array) and ``frequency`` Hz,
-    nominal parts, at the bench point (the exact PWM steady state of
-    :mod:`coildrive.model.pwm`; the force current of
-    :func:`coildrive.model.armature.hold_force_current`)."""
-    from ..model.circuit import loop
-    from ..model.pwm import pwm_steady_state
-
-    duty = np.atleast_1d(np.asarray(duty, float))
-    lp = loop(drive, point.supply_v, point.coil_temp_c, 1.0, 1.0)
-    ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
-    force = ss.mean
-    if drive.armature is not None:
-        from ..model.armature import hold_force_current, params_from_loop
-
-        p = params_from_loop(drive.armature, lp, 1.0)
-        force, _ = hold_force_current(p, ss.i_min, ss.rms, ss.period)
-    tau = lp.inductance / (duty * lp.r_on + (1.0 - duty) * lp.r_off)
-    return HoldFigures(duty, np.asarray(force, float), np.asarray(ss.mean, float),
-                       np.asarray(ss.ripple, float), np.asarray(tau, float))
-
-
-def model_stay_current(drive: Drive, point: BenchPoint) -> float:
-    """The model's drop-out current at the bench point, A: the stay current of the seated
-    armature (nominal parts; ``(I^2 / 2) |dL/dx|(0) = spring + load``), or the drive
-    file's ``release.current`` without an ``[armature]``."""
-    if drive.armature is None:
-        return float(drive.release.current)
-    from ..model.armature import params_from_loop
-    from ..model.circuit import loop
-
-    lp = loop(drive, point.supply_v, point.coil_temp_c, 1.0, 1.0)
-    return float(params_from_loop(drive.armature, lp, 1.0).stay_current[0])
-
-
-def model_dropout_duty(drive: Drive, point: BenchPoint, frequency: float, current: float | None = None,
-                       iterations: int = 50) -> float:
-    """Duty at which the model's hold force current at the bench point equals ``current``
-    A (default: :func:`model_stay_current`), by bisection (the force current rises with
-    the duty); ``nan`` if even 100 % falls short."""
-    target = model_stay_current(drive, point) if current is None else current
-    if hold_figures(drive, point, 1.0, frequency).force_a[0] < target:
-        return math.nan
-    lo, hi = 0.0, 1.0
-    for _ in range(iterations):
-        mid = 0.5 * (lo + hi)
-        if hold_figures(drive, point, mid, frequency).force_a[0] >= target:
-            hi = mid
-        else:
-            lo = mid
-    return 0.5 * (lo + hi)
-
-
-def corner_factor(drive: Drive, point: BenchPoint) -> tuple[float, str]:
-    """How much more current than at the bench point the worst corner needs to hold, and
-    that corner's label: the largest stay current over the design's corner grid
-    (:func:`coildrive.corners.corner_grid`) over the stay current at the bench point.
-
-    The stay current is a force balance, so the supply and coil temperature do not move
-    it (they move the duty that makes it, which the design takes care of); the
-    inductance tolerance does (``|dL/dx|`` scales with it). Without an ``[armature]``
-    there is no model of the mechanics: 1.
-    """
-    if drive.armature is None:
-        return 1.0, "no [armature]: the drop-out current is taken as the same at every corner"
-    from ..design.corners import corner_grid
-    from ..model.armature import params_from_loop
-    from ..model.circuit import loop
-
-    grid = corner_grid(drive)
-    lp = loop(drive, grid.supply, grid.ambient, grid.r_factor, grid.l_factor)
-    stay = params_from_loop(drive.armature, lp, grid.l_factor).stay_current
-    k = int(np.argmax(stay))
-    return float(stay[k]) / model_stay_current(drive, point), grid.label(k)
-
-
-def hold_margin(drive: Drive, margin: float | None = None) -> tuple[float, str]:
-    """The hold margin on the drop-out current and where it comes from."""
-    if margin is not None:
-        return float(margin), "--margin"
-    if drive.armature is not None:
-        return float(drive.armature.current_margin), "armature.current_margin"
-    if drive.release.current > 0:
-        return float(drive.hold.current / drive.release.current), "hold.current / release.current of the drive file"
-    return 1.25, "default 1.25 (the drive file gives no drop-out current)"
-
-
-def default_hold_time(drive: Drive, point: BenchPoint, frequency: float, duties) -> float:
-    """:data:`HOLD_SETTLE_TAUS` x the slowest averaged-hold time constant over ``duties``,
-    rounded up to whole milliseconds, at least 10 ms and 20 PWM periods (s)."""
-    tau = float(np.max(hold_figures(drive, point, duties, frequency).tau_s))
-    return max(math.ceil(HOLD_SETTLE_TAUS * tau * 1e3) / 1e3, 0.010, 20.0 / frequency)
-
-
-# --------------------------------------------------------------------------- one actuation
-@dataclass(frozen=True)
-class Judgement:
-    """What one captured actuation says about the armature (A, s from the switch-on).
-
-    ``seated``/``seated_by``: it seated during the peak (``"switch"`` or ``"dip"``);
-    ``dropped``/``dropped_by``: it let go during the hold (``"switch"``,
-    ``"hold rise"`` or ``"no release bump"``); ``evidence`` says it in words.
-    ``hold_rise_a`` is the largest rise of the period-averaged hold current above its
-    running minimum and ``rise_threshold_a`` what counts as one; ``late_hold_mean_a``
-    the measured mean over the last quarter of the hold (whole PWM periods);
-    ``settled_hold_a`` the settled hold current: the last eighth's mean when the hold had
-    settled, else the Aitken extrapolation of the last three eighths (``None`` when the
-    samples show no clean exponential settling); ``dropped_at_s`` when the switch opened
-    (from the switch-on).
-    """
-
-    seated: bool
-    seated_by: str
-    dropped: bool
-    dropped_by: str
-    evidence: str
-    peak_current_a: float
-    late_hold_mean_a: float | None
-    settled_hold_a: float | None
-    settled_how: str
-    hold_rise_a: float | None
-    rise_threshold_a: float | None
-    release_bump_a: float | None
-    dropped_at_s: float | None
-    peak_duration_s: float | None
-    samples_missing: int
-    analysis: object = field(repr=False, default=None)
-
-    def to_dict(self) -> dict:
-        out = {f.name: getattr(self, f.name) for f in dataclasses.fields(self) if f.name != "analysis"}
-        out["analysis"] = None if self.analysis is None else self.analysis.to_dict()
-        return out
-
-
-def _hold_rise(amps: np.ndarray, spp: float | None, noise_a: float) -> tuple[float, float]:
-    """Largest rise of the hold current, averaged over whole PWM periods, above its
-    running minimum (A), and the noise of that average (A, one sigma)."""
-    if spp and spp > 0:
-        periods = max(1, math.ceil(RISE_WINDOW_SAMPLES / spp))
-        width = max(1, int(round(periods * spp)))
-    else:
-        width = RISE_WINDOW_SAMPLES
-    if amps.size < 2 * width:
-        return 0.0, noise_a
-    from ..bench.analysis import _smooth
-
-    s = _smooth(amps, width)[width:]
-    rise = s - np.minimum.accumulate(s)
-    return float(np.max(rise)), noise_a / math.sqrt(width)
-
-
-def settled_value(amps: np.ndarray, spp: float | None, noise_a: float) -> tuple[float | None, str]:
-    """The value a settling hold current tends to, from its last three eighths (A).
-
-    The mean over equal windows of ``a + b exp(-t / tau)`` is a geometric sequence plus
-    ``a``, so Aitken's delta-squared process gives ``a`` exactly from three windows:
-    ``a = w3 - (w3 - w2)^2 / ((w3 - w2) - (w2 - w1))``, used while the first step stands
-    out of the noise (3 sigma) and the steps shrink like one exponential (ratio 0..0.9).
-    Otherwise, when the last two windows agree within the noise (or 0.1 %), the hold has
-    settled and ``w3`` is the answer; else there is no estimate.
-    """
-    n = amps.size // 8
-    if spp and spp > 0 and n >= spp:
-        n = int(round(int(n / spp) * spp))
-    if n < 4:
-        return None, "hold too short"
-    w1, w2, w3 = (float(np.mean(amps[amps.size - k * n: amps.size - (k - 1) * n])) for k in (3, 2, 1))
-    sigma = noise_a / math.sqrt(n) * math.sqrt(2.0)
-    d1, d2 = w2 - w1, w3 - w2
-    if abs(d1) > 3.0 * sigma and 0 < d2 / d1 < 0.9:
-        return w3 - d2 * d2 / (d2 - d1), f"still settling (steps {d1 * 1e3:.3g}, {d2 * 1e3:.3g} mA): Aitken extrapolation"
-    if abs(d2) <= max(3.0 * sigma, 1e-3 * abs(w3)):
-        return w3, "settled"
-    return None, f"not settling like one exponential (steps {d1 * 1e3:.3g}, {d2 * 1e3:.3g} mA)"
-
-
-def judge_actuation(capture, *, hold_frequency: float, use_switch: bool,
-                    release_bump_expected: bool = False, ripple_a: float = 0.0,
-                    pull_in_current: float | None = None, dropout_current: float | None = None,
-                    sense_position: str | None = None) -> Judgement:
-    """Analyse a capture of one actuation (with ON, PEAK_END and OFF events) and say
-    whether the armature seated and whether it dropped out during the hold.
-
-    Parameters
-    ----------
-    capture : :class:`~coildrive.bench.capture_file.Capture` with sample rate and scaling.
-    hold_frequency : Hz of the hold PWM (for whole-period averages).
-    use_switch : judge from the SWITCH events (the board has a position switch).
-    release_bump_expected : the design-duty actuation showed a release bump, so a
-        missing one means the armature was already open (signature mode only).
-    ripple_a : the model's hold ripple, A p-p (raises the rise threshold by
-        :data:`RISE_RIPPLE_FRACTION` of it).
-    pull_in_current, dropout_current : A, passed to the analysis.
-    """
-    from ..bench.analysis import analyse
-    from ..bench.messages import EventKind
-
-    a = analyse(capture, pull_in_current=pull_in_current, dropout_current=dropout_current,
-                hold_frequency=hold_frequency, sense_position=sense_position)
-    if not a.actuations:
-        return Judgement(False, "", False, "", "no actuation in the capture", 0.0, None, None, "no hold",
-                         None, None, None, None, None, 0, None)
-    r = a.actuations[0]
-    fs = a.sample_rate_hz
-    apc = a.amps_per_code
-    sense = a.sense_position
-    idx = capture.index
-    on_i = r.on_index
-    pe_i = r.peak_end_index
-    off_i = r.off_index
-    t_on = r.on_at_s
-
-    # late-hold mean and the hold rise
-    late = rise = thr = settled = None
-    settled_how = "no hold"
-    if pe_i is not None and off_i is not None and off_i > pe_i:
-        sel = (idx >= pe_i) & (idx < off_i)
-        c = capture.code[sel].astype(np.int64) - int(capture.meta.zero_code)
-        amps = np.where(c > 0, c + 0.5, 0.0) * apc
-        spp = fs / hold_frequency if hold_frequency else None
-        if sense == "switch":
-            amps = amps[amps > a.zero_threshold_a]
-        if amps.size >= 4:
-            quarter = amps.size // 4
-            if spp and sense == "coil":
-                periods = max(1, int(quarter / spp))
-                quarter = max(1, int(round(periods * spp)))
-            late = float(np.mean(amps[-quarter:]))
-            settled, settled_how = settled_value(amps, spp if sense == "coil" else None, r.noise_a)
-            rise, sigma = _hold_rise(amps, spp if sense == "coil" else None, r.noise_a)
-            thr = max(RISE_MIN_CONFIDENCE * sigma, RISE_MIN_CODES * apc, RISE_RIPPLE_FRACTION * ripple_a)
-    bump = r.release_bump_height_a
-
-    switch = [(e.index, e.value) for e in capture.events if e.kind == EventKind.SWITCH]
-    dropped_at = None
-    if use_switch:
-        end_peak = pe_i if pe_i is not None else (off_i if off_i is not None else idx[-1])
-        seat_idx = [i for i, v in switch if v == 1 and on_i <= i <= (off_i if off_i is not None else idx[-1])]
-        seated = bool(seat_idx)
-        seated_by = "switch" if seated else ""
-        drop_idx = [i for i, v in switch if v == 0 and seat_idx and i > seat_idx[0]
-                    and end_peak <= i <= (off_i if off_i is not None else idx[-1])]
-        dropped = bool(drop_idx)
-        dropped_by = "switch" if dropped else ""
-        if dropped:
-            dropped_at = drop_idx[0] / fs - t_on
-        if not seated:
-            evidence = "the position switch never reported the armature seated (no SWITCH = 1)"
-        elif dropped:
-            evidence = f"the position switch opened {dropped_at * 1e3:.3g} ms after the switch-on, during the hold"
-        else:
-            evidence = "the position switch stayed closed through the hold"
-    else:
-        seated = r.seated_time_s is not None
-        seated_by = "dip" if seated else ""
-        why = []
-        if rise is not None and rise > thr:
-            why.append(f"the hold current rose {rise * 1e3:.3g} mA above its running minimum "
-                       f"(threshold {thr * 1e3:.3g} mA)")
-        if release_bump_expected and off_i is not None and bump is None and sense == "coil":
-            why.append("no release bump at the turn-off (the armature was already open)")
-        dropped = bool(why)
-        dropped_by = ("hold rise" if why and why[0].startswith("the hold") else "no release bump") if why else ""
-        if not seated:
-            evidence = (f"no current dip during the peak (confidence {r.dip_confidence:.1f}): "
-                        "the armature did not move")
-        elif dropped:
-            evidence = "; ".join(why)
-        else:
-            evidence = ("the hold current never rose"
-                        + (f" (largest rise {rise * 1e3:.3g} mA, threshold {thr * 1e3:.3g} mA)" if rise is not None else "")
-                        + ("" if not release_bump_expected else "; the release bump is there"))
-    return Judgement(
-        seated=seated, seated_by=seated_by, dropped=bool(seated and dropped), dropped_by=dropped_by if seated else "",
-        evidence=evidence, peak_current_a=float(r.peak_current_a or 0.0), late_hold_mean_a=late,
-        settled_hold_a=settled, settled_how=settled_how,
-        hold_rise_a=rise, rise_threshold_a=thr, release_bump_a=bump, dropped_at_s=dropped_at,
-        peak_duration_s=r.peak_duration_s, samples_missing=r.samples_missing, analysis=r)
-
-
 # --------------------------------------------------------------------------- results
 @dataclass(frozen=True)
 class LiveActuation:
@@ -503,56 +149,6 @@ class LiveActuation:
         out = {f.name: getattr(self, f.name) for f in dataclasses.fields(self) if f.name != "judgement"}
         out.update(self.judgement.to_dict())
         return out
-
-
-@dataclass(frozen=True)
-class RepeatResult:
-    """One downward search: the lowest duty that held, the highest that dropped out, the
-    drop-out duty (their middle) and the drop-out current (A) there."""
-
-    number: int
-    held_duty: float
-    dropped_duty: float
-    dropout_duty: float
-    dropout_current_a: float
-    equivalent_current_a: float
-    current_basis: str
-    actuations: int
-
-    def to_dict(self) -> dict:
-        return dataclasses.asdict(self)
-
-
-@dataclass(frozen=True)
-class LiveRecommendation:
-    """The hold to use: ``hold_current_a`` = max(bench drop-out x ``corner_factor`` x
-    ``margin``, the model minimum); its duty, compare value and frequency from the design
-    of the drive with that hold current, the ``[hold]`` section, and that design's
-    verdict."""
-
-    hold_current_a: float
-    governed_by: str
-    bench_need_a: float
-    bench_dropout_a: float
-    corner_factor: float
-    worst_corner: str
-    margin: float
-    margin_source: str
-    model_minimum_a: float
-    model_minimum_basis: str
-    duty: float
-    compare_ticks: int
-    period_ticks: int
-    frequency_hz: float
-    min_mean_current_a: float
-    hold_toml: str
-    design_ok: bool
-    design_failed: list[str]
-    cautions: list[str]
-    design: object = field(default=None, repr=False, compare=False)
-
-    def to_dict(self) -> dict:
-        return {f.name: getattr(self, f.name) for f in dataclasses.fields(self) if f.name != "design"}
 
 
 @dataclass
@@ -606,42 +202,6 @@ class LiveResult:
         """Highest minus lowest drop-out duty over the repeats."""
         d = self.duties()
         return float(d.max() - d.min()) if d.size else math.nan
-
-
-# --------------------------------------------------------------------------- recommendation
-def recommend(drive: Drive, point: BenchPoint, bench_dropout_a: float,
-              margin: float | None = None) -> LiveRecommendation:
-    """The hold current and its design from a bench drop-out current (A at the bench
-    point; the highest over the repeats): see the module docstring for the rule."""
-    from ..design import design
-    from .sweep import minimum_hold_current
-
-    k, worst = corner_factor(drive, point)
-    m, m_src = hold_margin(drive, margin)
-    need = bench_dropout_a * k * m
-    i_min, basis = minimum_hold_current(drive)
-    rec = max(need, i_min)
-    governed = "bench" if need >= i_min else "model minimum"
-    rec_drive = dataclasses.replace(drive, hold=dataclasses.replace(drive.hold, current=rec))
-    des = design(rec_drive)
-    lines = ["[hold]",
-             f"current = {rec!r}  # A ({rec * 1e3:.5g} mA): "
-             + (f"bench drop-out {bench_dropout_a:.4g} A x {k:.4g} (worst corner) x {m:.4g} margin"
-                if governed == "bench" else f"the model minimum ({basis}); the bench needs {need:.4g} A"),
-             f"frequency = {drive.hold.frequency!r}  # Hz: compare {des.timer.compare_ticks}/{des.timer.period_ticks}"
-             f" = duty {des.hold.duty:.4f} at {des.hold.frequency_hz:.6g} Hz"]
-    if drive.hold.mode != "voltage":
-        lines.append(f'mode = "{drive.hold.mode}"')
-    if drive.hold.frequency_tolerance != 0.01:
-        lines.append(f"frequency_tolerance = {drive.hold.frequency_tolerance!r}")
-    return LiveRecommendation(
-        hold_current_a=rec, governed_by=governed, bench_need_a=need, bench_dropout_a=bench_dropout_a,
-        corner_factor=k, worst_corner=worst, margin=m, margin_source=m_src, model_minimum_a=i_min,
-        model_minimum_basis=basis, duty=des.hold.duty, compare_ticks=des.timer.compare_ticks,
-        period_ticks=des.timer.period_ticks, frequency_hz=des.hold.frequency_hz,
-        min_mean_current_a=des.hold.min_mean_current_a, hold_toml="\n".join(lines) + "\n",
-        design_ok=des.ok, design_failed=[c.name for c in des.failed], cautions=list(des.cautions),
-        design=des)
 
 
 # --------------------------------------------------------------------------- the procedure
@@ -1030,53 +590,12 @@ class LiveTuner:
 
     # ------------------------------------------------------------------ the search
     def _search(self, repeat: int, d0: float) -> RepeatResult:
-        o = self.options
-        step = o.coarse_step * d0
-        floor = self.result.floor_duty
-        held, dropped = d0, None
-        d = d0 - step
-        count = 0
-        while dropped is None:
-            d = max(d, floor)
-            act = self._one(d, repeat, "coarse")
-            count += 1
-            if act.judgement.dropped:
-                dropped = act.duty
-            else:
-                held = act.duty
-                if d <= floor + 1e-12:
-                    raise LiveFailure("no_dropout", f"no drop-out down to duty {act.duty:.4f} "
-                                      f"({o.floor:g} x the design duty): the armature stays seated -- stuck "
-                                      "closed, latching (residual magnetism), or the drop-out signature does "
-                                      "not show on this board; the device was stopped")
-                d -= step
-        quantum = max(self.result.resolution_duty, 1.0 / 65535)
-        while held - dropped > quantum:
-            mid = 0.5 * (held + dropped)
-            act = self._one(mid, repeat, "bisect")
-            count += 1
-            if act.duty >= held or act.duty <= dropped:
-                break  # the device cannot set a duty in between: its own resolution
-            if act.judgement.dropped:
-                dropped = act.duty
-            else:
-                held = act.duty
-        estimate = 0.5 * (held + dropped)
-        eq = float(hold_figures(self.drive, self.result.point, estimate, self._frequency).force_a[0])
-        measured = [a for a in self.result.actuations if a.repeat == repeat and not a.judgement.dropped
-                    and a.duty == held]
-        got = measured[-1].judgement.settled_hold_a if measured else None
-        if got is not None:
-            hf = hold_figures(self.drive, self.result.point, [held, estimate], self._frequency)
-            current = got * float(hf.force_a[1] / hf.mean_a[0])
-            basis = (f"measured settled hold current at duty {held:.4f} ({got:.4g} A, "
-                     f"{measured[-1].judgement.settled_how}), times the model's force/mean ratio to the drop-out duty")
-        else:
-            why = measured[-1].judgement.settled_how if measured else "no held actuation in this search"
-            current, basis = eq, f"the model's force current at the drop-out duty (no measured hold current: {why})"
-        return RepeatResult(number=repeat, held_duty=float(held), dropped_duty=float(dropped),
-                            dropout_duty=float(estimate), dropout_current_a=float(current),
-                            equivalent_current_a=eq, current_basis=basis, actuations=count)
+        o, res = self.options, self.result
+        held, dropped, count = search_dropout(
+            lambda d, step: self._one(d, repeat, step), d0, res.floor_duty, o.floor, o.coarse_step,
+            max(res.resolution_duty, 1.0 / 65535))
+        return repeat_result(self.drive, res.point, self._frequency, repeat, held, dropped, count,
+                             res.actuations)
 
     def _model_at_bench(self) -> None:
         """The bench point from the options and the device's events so far, and the model's

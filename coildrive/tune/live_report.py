@@ -1,5 +1,5 @@
 """Outputs of a live hold tuning: the actuation log, the bench / model / recommendation
-table and the JSON document. Reads a :class:`~coildrive.tune_live.LiveResult`; computes
+table and the JSON document. Reads a :class:`~coildrive.tune.live.LiveResult`; computes
 no physics."""
 
 from __future__ import annotations

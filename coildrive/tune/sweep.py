@@ -51,7 +51,7 @@ MAX_POINTS = 20_000_000
 #: Elements per vectorised chunk (fits the caches; far faster than one huge array).
 CHUNK = 12_288
 #: Convergence of the self-heating fixed point, K (tighter than model/thermal.py's
-#: 1e-4 K, so the sweep agrees with :func:`coildrive.evaluate.evaluate` to that tolerance).
+#: 1e-4 K, so the sweep agrees with :func:`coildrive.design.evaluate.evaluate` to that tolerance).
 TEMP_TOL = 1e-5
 
 CONSTRAINTS = ("hold", "duty_range", "ripple", "duty_steps", "coil_temp")
@@ -208,7 +208,7 @@ def settle_voltage_mode(drive: Drive, supply, ambient, r_factor, l_factor, duty,
     state at it, for flat arrays of points.
 
     Solves ``T = T_a + R_th I_rms(T)^2 R_coil(T)`` (the same fixed point as
-    :func:`coildrive.evaluate.hold_temperature`) by Newton steps with the slope
+    :func:`coildrive.design.evaluate.hold_temperature`) by Newton steps with the slope
     ``dP/dT = P (dR_c/dT) (1/R_c - 2/R_on)`` (a fixed-duty coil current scales as
     ``1/R_on``), to :data:`TEMP_TOL`. Points that run away or do not settle get ``inf``
     (the loop and steady state there are at ``max_coil_temp``, as in evaluate).

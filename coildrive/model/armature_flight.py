@@ -1,0 +1,636 @@
+"""The integrators of the moving-armature equations (:mod:`coildrive.model.armature`).
+
+The integrator is an embedded Dormand-Prince 5(4) Runge-Kutta pair (the method of
+scipy's ``RK45``) written over numpy arrays: every point has its own time, step size
+and error control, and all points advance together, one vectorised stage at a time.
+Stop events are located inside the accepted step by the cubic Hermite interpolant of
+the state and its derivative at both ends. Points whose damping makes the motion stiff
+(:func:`is_stiff`) are stepped by a linearly implicit Rosenbrock 2(3) pair instead. The
+per-point scipy ``solve_ivp`` path in :mod:`coildrive.model.armature_sim` is the
+reference it is tested against.
+
+One point at a time (:func:`fly_point`). Simulating one actuation whose hold lets the
+armature lift means one short flight per PWM half period -- over a thousand for a
+0.037 s hold at 25 kHz, each of a few steps -- and on 1-element arrays numpy's per-call
+overhead (microseconds per ufunc, some 40 ufuncs per stage) is nearly all the cost: such
+a run took seconds. Measured before choosing (``benchmarks/bench_armature.py``), two
+remedies were open: fewer, longer flights (integrating across the PWM edges of a hold)
+or the same algorithm without numpy. The first changes the step sequence -- the right-
+hand side jumps at every edge, so the flight must stop there anyway, and a step size
+carried across an edge gives different (if equally accurate) numbers, not the batch's.
+So a batch of one point is integrated by :func:`fly_point`: the same Dormand-Prince
+tableau, error norm, step control, Hermite stop location and Rosenbrock pair, written on
+Python floats operation for operation in the batch's order. The explicit path gives the
+batch's numbers bit for bit; the Rosenbrock path differs by rounding (its 3 x 3 solve is
+our own elimination, not LAPACK). The drop-out actuation of
+``benchmarks/bench_armature.py`` ran 15-18x faster (0.24 s instead of 3.5-4.3 s). Many
+points still go through the numpy batch, unchanged.
+
+Units: SI throughout (V, A, ohm, H, m, kg, N, s).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from .armature import BOUND, OPEN, RUNNING, SEAT, ZERO, ArmatureParams
+
+#: Hard cap on integrator steps per flight (never hang).
+MAX_STEPS = 20_000
+
+# Dormand-Prince 5(4) coefficients (Dormand & Prince 1980; the tableau of scipy's RK45).
+_A = (
+    (),
+    (1 / 5,),
+    (3 / 40, 9 / 40),
+    (44 / 45, -56 / 15, 32 / 9),
+    (19372 / 6561, -25360 / 2187, 64448 / 6561, -212 / 729),
+    (9017 / 3168, -355 / 33, 46732 / 5247, 49 / 176, -5103 / 18656),
+    (35 / 384, 0.0, 500 / 1113, 125 / 192, -2187 / 6784, 11 / 84),
+)
+DP_B = np.array([35 / 384, 0.0, 500 / 1113, 125 / 192, -2187 / 6784, 11 / 84, 0.0])
+DP_B4 = np.array([5179 / 57600, 0.0, 7571 / 16695, 393 / 640, -92097 / 339200, 187 / 2100,
+                  1 / 40])
+DP_E = DP_B - DP_B4
+
+
+# --------------------------------------------------------------------------- integrator
+class _Rhs:
+    """Right-hand side ``dy/dt`` for state rows (lambda, x, v, q, sq), vectorised."""
+
+    def __init__(self, p: ArmatureParams, on: np.ndarray, live: np.ndarray):
+        self.inv_lc = 1.0 / p.l_closed
+        self.beta = p.beta
+        self.drive_v = np.where(on, p.v_on, -p.v_off)
+        self.drive_r = np.where(on, p.r_on, p.r_off)
+        self.live = live.astype(float)
+        self.f0 = (p.preload + p.rate * p.stroke + p.load) / p.mass
+        self.km = p.rate / p.mass
+        self.cm = p.beta * self.inv_lc / (2.0 * p.mass)
+        self.dm = p.damping / p.mass
+
+    def jacobian(self, y: np.ndarray) -> np.ndarray:
+        """``d(dy/dt)/dy`` per point, shape (N, 5, 5) (rows and columns lambda, x, v, q, sq)."""
+        lam, x = y[0], y[1]
+        n = lam.size
+        di_dl = (1.0 + self.beta * x) * self.inv_lc
+        di_dx = lam * self.beta * self.inv_lc
+        i = lam * di_dl
+        jac = np.zeros((n, 5, 5))
+        jac[:, 0, 0] = -self.live * self.drive_r * di_dl
+        jac[:, 0, 1] = -self.live * self.drive_r * di_dx
+        jac[:, 1, 2] = 1.0
+        jac[:, 2, 0] = -2.0 * self.cm * lam
+        jac[:, 2, 1] = -self.km
+        jac[:, 2, 2] = -self.dm
+        jac[:, 3, 0] = di_dl
+        jac[:, 3, 1] = di_dx
+        jac[:, 4, 0] = 2.0 * i * di_dl
+        jac[:, 4, 1] = 2.0 * i * di_dx
+        return jac
+
+    def __call__(self, y: np.ndarray) -> np.ndarray:
+        lam, x, v = y[0], y[1], y[2]
+        i = lam * (1.0 + self.beta * x) * self.inv_lc
+        out = np.empty_like(y)
+        out[0] = self.live * (self.drive_v - self.drive_r * i)
+        out[1] = v
+        out[2] = self.f0 - self.km * x - self.cm * lam * lam - self.dm * v
+        out[3] = i
+        out[4] = i * i
+        return out
+
+
+def _hermite(y0, y1, d0, d1, h, theta):
+    """Cubic Hermite interpolant at fraction ``theta`` of a step of length ``h``."""
+    t2 = theta * theta
+    t3 = t2 * theta
+    return ((2 * t3 - 3 * t2 + 1) * y0 + (t3 - 2 * t2 + theta) * h * d0
+            + (-2 * t3 + 3 * t2) * y1 + (t3 - t2) * h * d1)
+
+
+def _root(g0, g1, d0, d1, h, iterations: int = 40):
+    """Fraction of the step where the Hermite interpolant of ``g`` reaches 0 from above.
+
+    ``g0 >= 0 > g1``: ``g`` is the distance to a stop (or the flux linkage), so a step
+    that starts on the stop (``g0 = 0``, leaving it) looks for the return, not the start.
+    Bisection on the cubic.
+    """
+    lo = np.zeros_like(g0)
+    hi = np.ones_like(g0)
+    for _ in range(iterations):
+        mid = 0.5 * (lo + hi)
+        same = _hermite(g0, g1, d0, d1, h, mid) > 0.0
+        lo = np.where(same, mid, lo)
+        hi = np.where(same, hi, mid)
+    return 0.5 * (lo + hi)
+
+
+_ROS_D = 1.0 / (2.0 + np.sqrt(2.0))
+_ROS_E32 = 6.0 + np.sqrt(2.0)
+
+
+def _rosenbrock_step(rhs: _Rhs, y: np.ndarray, f0: np.ndarray, h: np.ndarray):
+    """One step of the Rosenbrock pair of order 2(3) for an autonomous system (Shampine &
+    Reichelt 1997): returns the new state, its derivative and the error estimate."""
+    w = np.eye(5)[None, :, :] - (h * _ROS_D)[:, None, None] * rhs.jacobian(y)
+
+    def solve(b):
+        return np.linalg.solve(w, b.T[:, :, None])[:, :, 0].T
+
+    k1 = solve(f0)
+    f1 = rhs(y + 0.5 * h * k1)
+    k2 = solve(f1 - k1) + k1
+    y_new = y + h * k2
+    f2 = rhs(y_new)
+    k3 = solve(f2 - _ROS_E32 * (k2 - f1) - 2.0 * (k1 - f0))
+    err = (h / 6.0) * (k1 - 2.0 * k2 + k3)
+    return y_new, f2, err
+
+
+#: A point is integrated with the Rosenbrock pair when ``damping / mass`` times its
+#: mechanical time scale exceeds this (an explicit step would then be stability-bound).
+STIFF_RATIO = 200.0
+
+
+def is_stiff(p: ArmatureParams, force) -> np.ndarray:
+    """Per point: is the damped motion under ``force`` N stiff for an explicit method?"""
+    f = np.maximum(np.asarray(force, float), 1e-300)
+    mech = np.sqrt(2.0 * p.mass * p.stroke / f) + p.damping * p.stroke / f
+    return p.damping / p.mass * mech > STIFF_RATIO
+
+
+def fly_mixed(p: ArmatureParams, t, y, t_end, active, on, live, stiff: np.ndarray, rtol: float,
+              **kw) -> Flight:
+    """:func:`fly` with the stiff points stepped by the Rosenbrock pair, the rest by
+    Dormand-Prince (two vectorised runs, results merged)."""
+    if not np.any(active & stiff):
+        return fly(p, t, y, t_end, active, on, live, rtol, **kw)
+    if not np.any(active & ~stiff):
+        return fly(p, t, y, t_end, active, on, live, rtol, stiff=True, **kw)
+    a = fly(p, t, y, t_end, active & ~stiff, on, live, rtol, **kw)
+    b = fly(p, t, y, t_end, active & stiff, on, live, rtol, stiff=True, **kw)
+    pick = active & stiff
+    return Flight(np.where(pick, b.t, a.t), np.where(pick, b.y, a.y), np.where(pick, b.end, a.end),
+                  a.steps + b.steps)
+
+
+@dataclass
+class Flight:
+    """Result of :func:`fly`: per point the end time s, state (5 x N), why it ended
+    (SEAT, OPEN, ZERO, BOUND) and the step count; plus the accepted-step trajectory
+    (times and states, one column per point) when asked for."""
+
+    t: np.ndarray
+    y: np.ndarray
+    end: np.ndarray
+    steps: np.ndarray
+    path_t: list | None = None
+    path_y: list | None = None
+
+
+def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, active: np.ndarray,
+        on: np.ndarray, live: np.ndarray, rtol: float = 1e-7, record: bool = False,
+        query: np.ndarray | None = None, query_y: np.ndarray | None = None,
+        track: np.ndarray | None = None, peak: np.ndarray | None = None,
+        max_steps: int = MAX_STEPS, stiff: bool = False) -> Flight:
+    """Integrate the free armature of every ``active`` point from ``t`` until a stop, the
+    current reaching zero (switch off), or ``t_end``.
+
+    ``stiff``: step with the linearly implicit Rosenbrock pair of order 2(3) (Shampine &
+    Reichelt 1997, the method of MATLAB's ``ode23s``; L-stable) instead of Dormand-Prince
+    -- for a heavily damped armature, whose ``damping / mass`` would hold an explicit
+    method to tiny steps (see :func:`is_stiff`).
+
+    Parameters
+    ----------
+    p : parameters; t : start times s; y : start states (5 x N); t_end : s
+    active : points to move; on : switch state per point; live : False where the
+    current is blocked at zero (``lambda = 0`` with the switch off)
+    rtol : relative tolerance of the error control (per step, max over lambda, x, v)
+    record : keep every accepted step (for a waveform)
+    query, query_y : times s at which to store the state into ``query_y`` (5 x N) when
+    a step passes them
+    track, peak : where ``track``, keep the running largest current and its time in
+    ``peak`` (2 x N: A, s)
+
+    A batch of one point goes through :func:`fly_point` (Python floats: numpy's per-call
+    overhead on 1-element arrays would dominate; same algorithm and results), unless
+    :data:`SINGLE_POINT_SCALAR` is False; its ``path_*`` then hold the accepted steps only.
+    """
+    if t.size == 1 and SINGLE_POINT_SCALAR:
+        return _fly_single(p, t, y, t_end, active, on, live, rtol, record, query, query_y,
+                           track, peak, max_steps, stiff)
+    n = t.size
+    t = t.astype(float).copy()
+    y = y.astype(float).copy()
+    active = active.copy() & (t < t_end)
+    end = np.where(active, RUNNING, BOUND)
+    steps = np.zeros(n, int)
+    rhs = _Rhs(p, on, live)
+    scale = rtol * p.reference_scales()
+    h = np.maximum(1e-4 * (t_end - np.where(active, t, 0.0)), 1e-15)
+    k1 = rhs(y)
+    path_t = [t.copy()] if record else None
+    path_y = [y.copy()] if record else None
+    for _ in range(max_steps):
+        if not active.any():
+            break
+        h = np.where(active, np.minimum(h, t_end - t), 0.0)
+        if stiff:
+            y_new, k7, err = _rosenbrock_step(rhs, y, k1, h)
+        else:
+            ks = [k1]
+            for row in _A[1:]:
+                acc = row[0] * ks[0]
+                for a, k in zip(row[1:], ks[1:]):
+                    if a:
+                        acc = acc + a * k
+                ks.append(rhs(y + h * acc))
+            y_new = y + h * sum(b * k for b, k in zip(DP_B[:6], ks[:6]))
+            k7 = rhs(y_new)
+            ks.append(k7)
+            err = h * sum(e * k for e, k in zip(DP_E, ks) if e)
+        norm = np.max(np.abs(err[:3]) / (scale + rtol * np.abs(y[:3])), axis=0)
+        ok = active & (norm <= 1.0)
+        steps += active
+        # stop events inside accepted steps
+        seat = ok & (y_new[1] < 0.0)
+        opn = ok & (y_new[1] > p.stroke)
+        zero = ok & ~on & live & (y_new[0] < 0.0)
+        hit = seat | opn | zero
+        theta = np.ones(n)
+        kind = np.zeros(n, int)
+        y_full = y_new
+        if hit.any():
+            for mask, g0, g1, d0, d1, code in (
+                    (seat, y[1], y_new[1], k1[1], k7[1], SEAT),
+                    (opn, p.stroke - y[1], p.stroke - y_new[1], -k1[1], -k7[1], OPEN),
+                    (zero, y[0], y_new[0], k1[0], k7[0], ZERO)):
+                if mask.any():
+                    th = np.where(mask, _root(g0, g1, d0, d1, h), 1.0)
+                    first = mask & (th < theta)
+                    theta = np.where(first, th, theta)
+                    kind = np.where(first, code, kind)
+            y_hit = _hermite(y, y_new, k1, k7, h, theta)
+            y_hit[1] = np.where(kind == SEAT, 0.0, np.where(kind == OPEN, p.stroke, y_hit[1]))
+            y_hit[0] = np.where(kind == ZERO, 0.0, y_hit[0])
+            y_new = np.where(hit, y_hit, y_new)
+        t_new = t + theta * h
+        if query is not None:
+            qmask = ok & (t < query) & (query <= t_new)
+            if qmask.any():
+                th = np.where(qmask, (query - t) / np.where(h > 0, h, 1.0), 0.0)
+                yq = _hermite(y, y_full, k1, k7, h, th)
+                query_y[:, qmask] = yq[:, qmask]
+        if track is not None:
+            tr = ok & track
+            if tr.any():
+                i_new = p.current(y_new[0], y_new[1])
+                up = tr & (i_new > peak[0])
+                peak[0] = np.where(up, i_new, peak[0])
+                peak[1] = np.where(up, t_new, peak[1])
+        # accept
+        t = np.where(ok, t_new, t)
+        y = np.where(ok, y_new, y)
+        k1 = np.where(ok & ~hit, k7, k1)
+        if hit.any():
+            k1 = np.where(hit, rhs(y), k1)
+        end = np.where(seat | opn | zero, kind, end)
+        done_t = ok & ~hit & (t >= t_end)
+        end = np.where(done_t, BOUND, end)
+        if record:
+            path_t.append(np.where(ok, t, np.nan))
+            path_y.append(np.where(ok, y, np.nan))
+        active = active & ~hit & ~done_t
+        with np.errstate(divide="ignore"):
+            fac = np.clip(0.9 * norm ** (-1.0 / 3.0 if stiff else -0.2), 0.2, 5.0)
+        fac = np.where(norm <= 1.0, fac, np.minimum(fac, 0.9))
+        h = np.where(active, h * fac, h)
+        tiny = active & (h < 1e-12 * np.maximum(np.abs(t_end), 1e-9))
+        end = np.where(tiny, BOUND, end)
+        active = active & ~tiny
+    end = np.where(active, BOUND, end)
+    return Flight(t, y, end, steps, path_t, path_y)
+
+
+# --------------------------------------------------------------------------- one point
+# The batched integrator above spends almost all its time in numpy's per-call overhead
+# when it holds ONE point (a few microseconds per ufunc on a 1-element array, ~40 ufuncs
+# per stage): simulating one actuation through a PWM hold in which the armature lifts
+# means one short flight per half period, over a thousand of them. The functions below
+# are the same algorithm written on Python floats -- the same tableau, error norm, step
+# control, stop location on the Hermite interpolant and Rosenbrock pair, operation for
+# operation in the same order, so the results agree with the batch to rounding (the
+# tests check 1e-9). ``fly`` switches to them by itself for a batch of one point.
+
+#: ``fly`` integrates a batch of one point with the float-by-float :func:`fly_point`
+#: (same algorithm, no numpy per-call overhead). False forces the numpy batch even for
+#: one point -- only for comparing the two (tests, ``benchmarks/bench_armature.py``).
+SINGLE_POINT_SCALAR = True
+
+
+class OnePoint:
+    """The right-hand-side constants of one point as Python floats (units as
+    :class:`ArmatureParams`; ``scale``: the error-control scales of lambda, x, v in V*s,
+    m, m/s, before the relative tolerance)."""
+
+    __slots__ = ("inv_lc", "l_closed", "beta", "stroke", "v_on", "r_on", "v_off", "r_off",
+                 "f0", "km", "cm", "dm", "scale")
+
+    def __init__(self, p: ArmatureParams, scale=None):
+        if len(p) != 1:
+            raise ValueError("OnePoint holds the parameters of exactly one point")
+        g = {name: float(getattr(p, name)[0]) for name in p.__dataclass_fields__}
+        # the same expressions as _Rhs, so the same roundings
+        self.inv_lc = 1.0 / g["l_closed"]
+        self.l_closed = g["l_closed"]
+        self.beta = g["beta"]
+        self.stroke = g["stroke"]
+        self.v_on, self.r_on = g["v_on"], g["r_on"]
+        self.v_off, self.r_off = g["v_off"], g["r_off"]
+        self.f0 = (g["preload"] + g["rate"] * g["stroke"] + g["load"]) / g["mass"]
+        self.km = g["rate"] / g["mass"]
+        self.cm = g["beta"] * self.inv_lc / (2.0 * g["mass"])
+        self.dm = g["damping"] / g["mass"]
+        s = p.reference_scales()[:, 0] if scale is None else scale
+        self.scale = tuple(float(a) for a in s)
+
+
+def _hermite5(y0, y1, d0, d1, h, theta):
+    """:func:`_hermite` of a state of 5 floats, the weights computed once (the same
+    roundings: each weight is the same expression on the same numbers)."""
+    t2 = theta * theta
+    t3 = t2 * theta
+    w0 = 2 * t3 - 3 * t2 + 1
+    w1 = (t3 - 2 * t2 + theta) * h
+    w2 = -2 * t3 + 3 * t2
+    w3 = (t3 - t2) * h
+    return (w0 * y0[0] + w1 * d0[0] + w2 * y1[0] + w3 * d1[0],
+            w0 * y0[1] + w1 * d0[1] + w2 * y1[1] + w3 * d1[1],
+            w0 * y0[2] + w1 * d0[2] + w2 * y1[2] + w3 * d1[2],
+            w0 * y0[3] + w1 * d0[3] + w2 * y1[3] + w3 * d1[3],
+            w0 * y0[4] + w1 * d0[4] + w2 * y1[4] + w3 * d1[4])
+
+
+def _root1(g0, g1, d0, d1, h, iterations: int = 40):
+    """:func:`_root` of one float (the same bisection)."""
+    lo, hi = 0.0, 1.0
+    for _ in range(iterations):
+        mid = 0.5 * (lo + hi)
+        if _hermite(g0, g1, d0, d1, h, mid) > 0.0:
+            lo = mid
+        else:
+            hi = mid
+    return 0.5 * (lo + hi)
+
+
+def _lu3(a):
+    """LU factors of a 3 x 3 matrix (list of rows) with partial pivoting, in place:
+    returns (rows, order) for :func:`_solve3`."""
+    order = [0, 1, 2]
+    for k in range(2):
+        piv = max(range(k, 3), key=lambda r: abs(a[r][k]))
+        if piv != k:
+            a[k], a[piv] = a[piv], a[k]
+            order[k], order[piv] = order[piv], order[k]
+        for r in range(k + 1, 3):
+            f = a[r][k] / a[k][k]
+            a[r][k] = f
+            for col in range(k + 1, 3):
+                a[r][col] -= f * a[k][col]
+    return a, order
+
+
+def _solve3(lu, b):
+    """Solve with the factors of :func:`_lu3` for a right-hand side of 3 floats."""
+    a, order = lu
+    z0 = b[order[0]]
+    z1 = b[order[1]] - a[1][0] * z0
+    z2 = b[order[2]] - a[2][0] * z0 - a[2][1] * z1
+    z2 = z2 / a[2][2]
+    z1 = (z1 - a[1][2] * z2) / a[1][1]
+    z0 = (z0 - a[0][1] * z1 - a[0][2] * z2) / a[0][0]
+    return z0, z1, z2
+
+
+def fly_point(c: OnePoint, t: float, y, t_end: float, on: bool, live: bool,
+              rtol: float = 1e-7, record: bool = False, query: float | None = None,
+              track: bool = False, peak: list | None = None, max_steps: int = MAX_STEPS,
+              stiff: bool = False):
+    """:func:`fly` for one point, on Python floats (see the note above
+    :data:`SINGLE_POINT_SCALAR`): the same steps, stops and results.
+
+    ``c``: the point's constants; ``t`` s, ``y`` the 5 start values (lambda V*s, x m,
+    v m/s, q A*s, sq A^2*s); ``on``/``live`` as in :func:`fly`; ``query`` a time s;
+    ``track`` with ``peak = [A, s]`` (updated in place).
+
+    Returns ``(t, y, end, steps, y_query, path)``: end time s, end state (tuple of 5),
+    end code, step count, the state at ``query`` (None unless a step passed it), and with
+    ``record`` the accepted steps as three lists -- times s, states, derivatives (each
+    starting with the start point; the derivative is ``dy/dt`` at that state).
+    """
+    inv_lc, beta, stroke, lc = c.inv_lc, c.beta, c.stroke, c.l_closed
+    f0c, km, cm, dm = c.f0, c.km, c.cm, c.dm
+    lv = 1.0 if live else 0.0
+    dv = c.v_on if on else -c.v_off
+    dr = c.r_on if on else c.r_off
+    off_live = (not on) and live
+
+    def rhs(lam, x, v):
+        i = lam * (1.0 + beta * x) * inv_lc
+        return (lv * (dv - dr * i), v, f0c - km * x - cm * lam * lam - dm * v, i, i * i)
+
+    s0, s1, s2 = (rtol * a for a in c.scale)
+    t = float(t)
+    y = tuple(float(a) for a in y)
+    t_end = float(t_end)
+    active = t < t_end
+    end = RUNNING if active else BOUND
+    steps = 0
+    h = max(1e-4 * (t_end - (t if active else 0.0)), 1e-15)
+    k1 = rhs(y[0], y[1], y[2])
+    y_query = None
+    path = ([t], [y], [k1]) if record else None
+    a21 = _A[1][0]
+    a31, a32 = _A[2]
+    a41, a42, a43 = _A[3]
+    a51, a52, a53, a54 = _A[4]
+    a61, a62, a63, a64, a65 = _A[5]
+    b1, b3, b4, b5, b6 = (float(DP_B[j]) for j in (0, 2, 3, 4, 5))
+    e1, e3, e4, e5, e6, e7 = (float(DP_E[j]) for j in (0, 2, 3, 4, 5, 6))
+    rd, re32 = float(_ROS_D), float(_ROS_E32)
+    tiny_h = 1e-12 * max(abs(t_end), 1e-9)
+    y_new = y
+    for _ in range(max_steps):
+        if not active:
+            break
+        h = min(h, t_end - t)
+        if stiff:
+            # Rosenbrock 2(3) as _rosenbrock_step: W = I - h d J, J = _Rhs.jacobian. The
+            # q and sq rows feed nothing back, so W is solved on (lambda, x, v) and the
+            # last two rows by substitution.
+            lam, x = y[0], y[1]
+            di_dl = (1.0 + beta * x) * inv_lc
+            di_dx = lam * beta * inv_lc
+            i = lam * di_dl
+            hd = h * rd
+            j30, j31 = di_dl, di_dx
+            j40, j41 = 2.0 * i * di_dl, 2.0 * i * di_dx
+            lu = _lu3([[1.0 - hd * (-lv * dr * di_dl), 0.0 - hd * (-lv * dr * di_dx), 0.0],
+                       [0.0, 1.0, 0.0 - hd],
+                       [0.0 - hd * (-2.0 * cm * lam), 0.0 - hd * (-km), 1.0 - hd * (-dm)]])
+
+            def solve(b):
+                z0, z1, z2 = _solve3(lu, b)
+                return (z0, z1, z2, b[3] + hd * j30 * z0 + hd * j31 * z1,
+                        b[4] + hd * j40 * z0 + hd * j41 * z1)
+
+            f0 = k1
+            q1 = solve(f0)
+            f1 = rhs(*(y[j] + 0.5 * h * q1[j] for j in range(3)))
+            q2 = solve(tuple(f1[j] - q1[j] for j in range(5)))
+            q2 = tuple(q2[j] + q1[j] for j in range(5))
+            y_new = tuple(y[j] + h * q2[j] for j in range(5))
+            k7 = rhs(y_new[0], y_new[1], y_new[2])
+            q3 = solve(tuple(k7[j] - re32 * (q2[j] - f1[j]) - 2.0 * (q1[j] - f0[j])
+                             for j in range(5)))
+            h6 = h / 6.0
+            err0, err1, err2 = (h6 * (q1[j] - 2.0 * q2[j] + q3[j]) for j in range(3))
+        else:
+            # Dormand-Prince 5(4), unrolled: the stages summed in the order of fly(); the
+            # stages need only lambda, x, v (q and sq feed nothing back)
+            y0, y1, y2, y3, y4 = y
+            k2 = rhs(y0 + h * (a21 * k1[0]),
+                     y1 + h * (a21 * k1[1]),
+                     y2 + h * (a21 * k1[2]))
+            k3 = rhs(y0 + h * (a31 * k1[0] + a32 * k2[0]),
+                     y1 + h * (a31 * k1[1] + a32 * k2[1]),
+                     y2 + h * (a31 * k1[2] + a32 * k2[2]))
+            k4 = rhs(y0 + h * (a41 * k1[0] + a42 * k2[0] + a43 * k3[0]),
+                     y1 + h * (a41 * k1[1] + a42 * k2[1] + a43 * k3[1]),
+                     y2 + h * (a41 * k1[2] + a42 * k2[2] + a43 * k3[2]))
+            k5 = rhs(y0 + h * (a51 * k1[0] + a52 * k2[0] + a53 * k3[0] + a54 * k4[0]),
+                     y1 + h * (a51 * k1[1] + a52 * k2[1] + a53 * k3[1] + a54 * k4[1]),
+                     y2 + h * (a51 * k1[2] + a52 * k2[2] + a53 * k3[2] + a54 * k4[2]))
+            k6 = rhs(y0 + h * (a61 * k1[0] + a62 * k2[0] + a63 * k3[0] + a64 * k4[0] + a65 * k5[0]),
+                     y1 + h * (a61 * k1[1] + a62 * k2[1] + a63 * k3[1] + a64 * k4[1] + a65 * k5[1]),
+                     y2 + h * (a61 * k1[2] + a62 * k2[2] + a63 * k3[2] + a64 * k4[2] + a65 * k5[2]))
+            # b2 = 0 (skipped: adding 0 * k2 changes no finite sum)
+            y_new = (y0 + h * (b1 * k1[0] + b3 * k3[0] + b4 * k4[0] + b5 * k5[0] + b6 * k6[0]),
+                     y1 + h * (b1 * k1[1] + b3 * k3[1] + b4 * k4[1] + b5 * k5[1] + b6 * k6[1]),
+                     y2 + h * (b1 * k1[2] + b3 * k3[2] + b4 * k4[2] + b5 * k5[2] + b6 * k6[2]),
+                     y3 + h * (b1 * k1[3] + b3 * k3[3] + b4 * k4[3] + b5 * k5[3] + b6 * k6[3]),
+                     y4 + h * (b1 * k1[4] + b3 * k3[4] + b4 * k4[4] + b5 * k5[4] + b6 * k6[4]))
+            k7 = rhs(y_new[0], y_new[1], y_new[2])
+            err0 = h * (e1 * k1[0] + e3 * k3[0] + e4 * k4[0] + e5 * k5[0] + e6 * k6[0]
+                          + e7 * k7[0])
+            err1 = h * (e1 * k1[1] + e3 * k3[1] + e4 * k4[1] + e5 * k5[1] + e6 * k6[1]
+                          + e7 * k7[1])
+            err2 = h * (e1 * k1[2] + e3 * k3[2] + e4 * k4[2] + e5 * k5[2] + e6 * k6[2]
+                          + e7 * k7[2])
+        r0 = abs(err0) / (s0 + rtol * abs(y[0]))
+        r1 = abs(err1) / (s1 + rtol * abs(y[1]))
+        r2 = abs(err2) / (s2 + rtol * abs(y[2]))
+        norm = max(r0, r1, r2)
+        if r0 != r0 or r1 != r1 or r2 != r2:
+            norm = math.nan  # np.max propagates a NaN; the step is then rejected
+        ok = norm <= 1.0
+        steps += 1
+        hit = False
+        theta = 1.0
+        kind = 0
+        y_full = y_new
+        if ok:
+            seat = y_new[1] < 0.0
+            opn = y_new[1] > stroke
+            zero = off_live and y_new[0] < 0.0
+            hit = seat or opn or zero
+            if hit:
+                if seat:
+                    th = _root1(y[1], y_new[1], k1[1], k7[1], h)
+                    if th < theta:
+                        theta, kind = th, SEAT
+                if opn:
+                    th = _root1(stroke - y[1], stroke - y_new[1], -k1[1], -k7[1], h)
+                    if th < theta:
+                        theta, kind = th, OPEN
+                if zero:
+                    th = _root1(y[0], y_new[0], k1[0], k7[0], h)
+                    if th < theta:
+                        theta, kind = th, ZERO
+                yh = list(_hermite5(y, y_new, k1, k7, h, theta))
+                if kind == SEAT:
+                    yh[1] = 0.0
+                elif kind == OPEN:
+                    yh[1] = stroke
+                if kind == ZERO:
+                    yh[0] = 0.0
+                y_new = tuple(yh)
+            t_new = t + theta * h
+            if query is not None and t < query <= t_new:
+                th = (query - t) / (h if h > 0 else 1.0)
+                y_query = _hermite5(y, y_full, k1, k7, h, th)
+            if track:
+                i_new = y_new[0] * (1.0 + beta * y_new[1]) / lc
+                if i_new > peak[0]:
+                    peak[0], peak[1] = i_new, t_new
+            t = t_new
+            y = y_new
+            k1 = rhs(y[0], y[1], y[2]) if hit else k7
+            done_t = not hit and t >= t_end
+            if hit:
+                end = kind
+            elif done_t:
+                end = BOUND
+            if record:
+                path[0].append(t)
+                path[1].append(y)
+                path[2].append(k1)
+            active = not hit and not done_t
+        if norm == 0.0:
+            fac = 5.0  # numpy: 0 ** -0.2 = inf, clipped to 5
+        else:
+            # (a NaN norm stays NaN through max/min, as through np.clip)
+            fac = min(max(0.9 * norm ** (-1.0 / 3.0 if stiff else -0.2), 0.2), 5.0)
+        if not ok:
+            fac = min(fac, 0.9)
+        if active:
+            h = h * fac
+            if h < tiny_h:
+                end = BOUND
+                active = False
+    if active:
+        end = BOUND
+    return t, y, end, steps, y_query, path
+
+
+def _fly_single(p: ArmatureParams, t, y, t_end, active, on, live, rtol, record, query, query_y,
+                track, peak, max_steps, stiff) -> Flight:
+    """:func:`fly` for a batch of one point through :func:`fly_point`, results as arrays."""
+    c = OnePoint(p)
+    # (a NaN query time is never passed: every comparison with it is false)
+    q = None if query is None else float(np.asarray(query, float).ravel()[0])
+    tr = bool(np.asarray(track).ravel()[0]) if track is not None else False
+    pk = [float(peak[0, 0]), float(peak[1, 0])] if tr else None
+    t_end1 = float(np.asarray(t_end, float).ravel()[0])
+    t0 = float(np.asarray(t, float).ravel()[0])
+    y0 = np.asarray(y, float)[:, 0]
+    if not bool(np.asarray(active).ravel()[0]):
+        return Flight(np.array([t0]), y0[:, None].copy(), np.array([BOUND]), np.zeros(1, int),
+                      [np.array([t0])] if record else None,
+                      [y0[:, None].copy()] if record else None)
+    t1, y1, end, steps, yq, path = fly_point(
+        c, t0, y0, t_end1, bool(np.asarray(on).ravel()[0]), bool(np.asarray(live).ravel()[0]),
+        rtol, record, q, tr, pk, max_steps, stiff)
+    if yq is not None and query_y is not None:
+        query_y[:, 0] = yq
+    if tr:
+        peak[0, 0], peak[1, 0] = pk
+    path_t = [np.array([a]) for a in path[0]] if record else None
+    path_y = [np.array(a, float)[:, None] for a in path[1]] if record else None
+    return Flight(np.array([t1]), np.array(y1, float)[:, None], np.array([end]),
+                  np.array([steps]), path_t, path_y)

@@ -1,0 +1,332 @@
+"""Pull-in, release and late-release runs of the moving armature over many points.
+
+Each run integrates the equations of :mod:`coildrive.model.armature` with the batched
+steppers of :mod:`coildrive.model.armature_flight` from stop to stop, follows the bounces
+on the seat, and reports the moments (seat, dip, unlatch, open, zero current), the
+charge and square integrals for the energies, and an outcome code per point.
+
+Units: SI throughout (V, A, ohm, H, m, kg, N, s).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .armature import (BOUND, MAX_BOUNCES, NO_START, NOT_OPEN, OPEN, OPENED, REST_FRACTION, SEAT,
+                       SEATED, STALLED, ZERO, ArmatureParams, time_bound)
+from .armature_flight import fly_mixed, is_stiff
+from .rl import decay_current, decay_integrals, decay_time, rise_current, rise_integrals, rise_time
+
+# --------------------------------------------------------------------------- pull-in
+@dataclass(frozen=True)
+class PullInBatch:
+    """Pull-in from rest at the open stop with the switch held on (arrays over points).
+
+    ``status``: SEATED, NO_START (the coil never reaches the start current) or STALLED
+    (not seated within the bound; ``stall_gap_m`` says where it was). Times in s from
+    switch-on; currents in A. ``start_*``: the armature leaves the open stop.
+    ``impact_time``: first touch of the seat; ``dip_current``/``dip_time``: the current
+    at that moment, where the motional back-EMF has pulled it down to its local
+    minimum; ``hump_current`` is the largest current before it (``dip_depth`` =
+    hump - dip, 0 when the current never fell). ``seat_time``: at rest on the seat (after
+    any bounces). ``peak_end_current``: the current at the asked time (end of the peak
+    phase). ``steps``: integrator steps taken.
+    """
+
+    status: np.ndarray
+    start_current: np.ndarray
+    start_time: np.ndarray
+    impact_time: np.ndarray
+    impact_speed: np.ndarray
+    dip_current: np.ndarray
+    dip_time: np.ndarray
+    hump_current: np.ndarray
+    hump_time: np.ndarray
+    seat_time: np.ndarray
+    seat_current: np.ndarray
+    bounces: np.ndarray
+    stall_gap: np.ndarray
+    peak_end_current: np.ndarray
+    bound: np.ndarray
+    steps: np.ndarray
+
+    @property
+    def dip_depth(self) -> np.ndarray:
+        return np.where(np.isfinite(self.dip_current), np.maximum(self.hump_current - self.dip_current, 0.0), np.nan)
+
+
+def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: int = 4 * MAX_BOUNCES) -> PullInBatch:
+    """Switch on at t = 0 from rest at the open stop and follow the armature until seated.
+
+    The rise before motion is closed form with the open inductance (the armature rests
+    on the open stop while the force is below spring preload + load); the motion is
+    integrated by :func:`fly`. ``peak_time`` (s, scalar or per point) asks for the
+    current at that time.
+    """
+    n = len(p)
+    i_inf = p.v_on / p.r_on
+    i_start = p.start_current
+    moves = i_inf > i_start
+    l_open = p.l_open
+    t_start = np.where(moves, rise_time(np.where(moves, i_start, 0.0), 0.0, p.v_on, p.r_on, l_open), np.inf)
+    q0, s0 = rise_integrals(np.where(moves, t_start, 0.0), 0.0, p.v_on, p.r_on, l_open)
+    lam_start = l_open * i_start
+    lam_stay = p.l_closed * p.stay_current
+    y = np.stack([np.where(moves, lam_start * (1.0 + 1e-12), 0.0), p.stroke.copy(), np.zeros(n), q0, s0])
+    t = np.where(moves, t_start, 0.0)
+    f_inf = p.closing_force(l_open * i_inf) - p.opening_force(p.stroke)
+    bound = np.where(moves, time_bound(t_start, p.l_closed, p.r_on, p.mass, p.stroke, p.damping, f_inf), np.inf)
+    status = np.where(moves, -1, NO_START)
+    nan = np.full(n, np.nan)
+    impact_time, impact_speed, dip_current = nan.copy(), nan.copy(), nan.copy()
+    seat_time = np.full(n, np.inf)
+    seat_current = nan.copy()
+    stall_gap = np.where(moves, np.nan, p.stroke)
+    bounces = np.zeros(n, int)
+    steps = np.zeros(n, int)
+    peak = np.stack([np.where(moves, i_start, 0.0), np.where(moves, t_start, 0.0)])
+    want = None if peak_time is None else np.broadcast_to(np.asarray(peak_time, float), (n,)).copy()
+    query_y = np.full((5, n), np.nan)
+    active = moves.copy()
+    on = np.ones(n, bool)
+    live = np.ones(n, bool)
+    stiff = is_stiff(p, np.where(moves, f_inf, 1.0))
+    for _ in range(max_rounds):
+        if not active.any():
+            break
+        fl = fly_mixed(p, t, y, bound, active, on, live, stiff, rtol, query=want, query_y=query_y,
+                 track=active & np.isnan(impact_time), peak=peak)
+        steps += fl.steps
+        t = np.where(active, fl.t, t)
+        y = np.where(active, fl.y, y)
+        lam, x, v = y[0], y[1], y[2]
+        seat = active & (fl.end == SEAT)
+        first = seat & np.isnan(impact_time)
+        impact_time = np.where(first, t, impact_time)
+        impact_speed = np.where(first, -v, impact_speed)
+        dip_current = np.where(first, p.current(lam, 0.0), dip_current)
+        rebound = p.restitution * np.abs(v)
+        bounce = seat & (rebound >= REST_FRACTION * impact_speed) & (bounces < MAX_BOUNCES) & (rebound > 0)
+        bounces += bounce
+        y[2] = np.where(bounce, rebound, np.where(seat, 0.0, y[2]))
+        rest = seat & ~bounce
+        holds = rest & (lam >= lam_stay)
+        status = np.where(holds, SEATED, status)
+        seat_time = np.where(holds, t, seat_time)
+        seat_current = np.where(holds, p.current(lam, 0.0), seat_current)
+        active = active & ~holds
+        # At the open stop with the force still too weak: rest there until the current
+        # (closed form, open inductance) reaches the start current again.
+        opn = active & (fl.end == OPEN)
+        if opn.any():
+            y[2] = np.where(opn, 0.0, y[2])
+            stuck = opn & (lam <= lam_start)
+            if stuck.any():
+                i_now = p.current(lam, p.stroke)
+                dt = rise_time(i_start, np.minimum(i_now, i_start), p.v_on, p.r_on, l_open)
+                dq, ds = rise_integrals(np.where(stuck, dt, 0.0), i_now, p.v_on, p.r_on, l_open)
+                t = np.where(stuck, t + dt, t)
+                y[0] = np.where(stuck, lam_start * (1.0 + 1e-12), y[0])
+                y[3] = np.where(stuck, y[3] + dq, y[3])
+                y[4] = np.where(stuck, y[4] + ds, y[4])
+        ended = active & (fl.end == BOUND)
+        status = np.where(ended, STALLED, status)
+        stall_gap = np.where(ended, x, stall_gap)
+        active = active & ~ended
+    status = np.where(status < 0, STALLED, status)
+    stall_gap = np.where((status == STALLED) & np.isnan(stall_gap), y[1], stall_gap)
+    seated = status == SEATED
+    dip_time = np.where(seated, impact_time, np.nan)
+    dip_current = np.where(seated, dip_current, np.nan)
+    hump = np.where(seated, np.maximum(peak[0], dip_current), np.nan)
+    # current at the end of the peak phase
+    if want is None:
+        peak_end = np.full(n, np.nan)
+    else:
+        before = want < np.where(moves, t_start, np.inf)
+        after = seated & (want >= seat_time)
+        i_seat = np.where(seated, seat_current, 0.0)
+        peak_end = np.where(
+            before, rise_current(want, 0.0, p.v_on, p.r_on, l_open),
+            np.where(after, rise_current(np.where(after, want - seat_time, 0.0), i_seat, p.v_on,
+                                         p.r_on, p.l_closed),
+                     p.current(query_y[0], query_y[1])))
+    return PullInBatch(status=status, start_current=i_start, start_time=t_start,
+                       impact_time=np.where(seated, impact_time, np.nan), impact_speed=impact_speed,
+                       dip_current=dip_current, dip_time=dip_time, hump_current=hump,
+                       hump_time=np.where(seated, peak[1], np.nan), seat_time=seat_time,
+                       seat_current=seat_current, bounces=bounces, stall_gap=stall_gap,
+                       peak_end_current=peak_end, bound=bound, steps=steps)
+
+
+def peak_current_closed_form(p: ArmatureParams, pin: PullInBatch, peak_time):
+    """The current in A at ``peak_time`` s from a finished :func:`pull_in` without
+    integrating again, or ``None`` where that needs the trajectory (during the motion).
+
+    Before the armature moves it is the open-inductance rise; once it rests on the seat,
+    the closed-inductance rise from the seat current.
+    """
+    want = np.broadcast_to(np.asarray(peak_time, float), (len(p),))
+    before = want < pin.start_time
+    after = (pin.status == SEATED) & (want >= pin.seat_time)
+    if not np.all(before | after):
+        return None
+    i_seat = np.where(after, pin.seat_current, 0.0)
+    return np.where(before, rise_current(want, 0.0, p.v_on, p.r_on, p.l_open),
+                    rise_current(np.where(after, want - pin.seat_time, 0.0), i_seat, p.v_on,
+                                 p.r_on, p.l_closed))
+
+
+# --------------------------------------------------------------------------- release
+@dataclass(frozen=True)
+class ReleaseBatch:
+    """Release from the seat after turning off ``i_off`` A (arrays over points).
+
+    ``status``: OPENED or NOT_OPEN (not back at the open stop within the bound;
+    ``stall_gap_m`` where it was). Times in s from turn-off: ``unlatch_time`` (the
+    armature leaves the seat: the current has decayed to the stay current),
+    ``open_time`` (at rest on the open stop), ``zero_time`` (the current reaches zero).
+    ``charge``/``square``: ``int i dt`` A*s and ``int i^2 dt`` A^2*s from turn-off to
+    zero current (for the freewheel energy). With a late bypass (split decay,
+    :func:`late_release`) ``slow_charge``/``slow_square`` are the part of those that
+    went through the slow path before the bypass opened and ``fast_current`` (A) is the
+    current then; ``None`` otherwise (nothing slow, the fast path takes ``i_off``).
+    """
+
+    status: np.ndarray
+    unlatch_time: np.ndarray
+    open_time: np.ndarray
+    zero_time: np.ndarray
+    charge: np.ndarray
+    square: np.ndarray
+    stall_gap: np.ndarray
+    bound: np.ndarray
+    steps: np.ndarray
+    slow_charge: np.ndarray | None = None
+    slow_square: np.ndarray | None = None
+    fast_current: np.ndarray | None = None
+
+
+def release(p: ArmatureParams, i_off, rtol: float = 1e-7, max_rounds: int = 4 * MAX_BOUNCES) -> ReleaseBatch:
+    """Turn off at t = 0 with the armature seated and ``i_off`` A flowing; follow the
+    freewheel decay and the armature until it rests on the open stop."""
+    n = len(p)
+    i_off = np.broadcast_to(np.asarray(i_off, float), (n,)).copy()
+    i_stay = p.stay_current
+    lam_stay = p.l_closed * i_stay
+    lam_start = p.l_open * p.start_current
+    held = i_off > i_stay
+    t_un = np.where(held, decay_time(np.minimum(i_stay, i_off), i_off, p.r_off, p.v_off, p.l_closed), 0.0)
+    q0, s0 = decay_integrals(t_un, i_off, p.r_off, p.v_off, p.l_closed)
+    lam = np.where(held, lam_stay * (1.0 - 1e-12), p.l_closed * i_off)
+    y = np.stack([lam, np.zeros(n), np.zeros(n), q0, s0])
+    t = t_un.copy()
+    live = lam > 0
+    zero_time = np.where(live, np.nan, t_un)
+    bound = time_bound(t_un, p.l_closed, p.r_off, p.mass, p.stroke, p.damping, p.opening_force(p.stroke))
+    status = np.full(n, -1)
+    open_time = np.full(n, np.inf)
+    stall_gap = np.full(n, np.nan)
+    steps = np.zeros(n, int)
+    active = np.ones(n, bool)
+    off = np.zeros(n, bool)
+    stiff = is_stiff(p, p.opening_force(p.stroke))
+    for _ in range(max_rounds):
+        if not active.any():
+            break
+        fl = fly_mixed(p, t, y, bound, active, off, live, stiff, rtol)
+        steps += fl.steps
+        t = np.where(active, fl.t, t)
+        y = np.where(active, fl.y, y)
+        zero = active & (fl.end == ZERO)
+        zero_time = np.where(zero, t, zero_time)
+        live = live & ~zero
+        y[0] = np.where(zero, 0.0, y[0])
+        opn = active & (fl.end == OPEN)
+        y[2] = np.where(opn, 0.0, y[2])
+        stays = opn & (y[0] <= lam_start)
+        open_time = np.where(stays, t, open_time)
+        status = np.where(stays, OPENED, status)
+        # current still flowing at the open stop: the rest of the decay is closed form
+        tail = stays & live
+        if tail.any():
+            i_o = p.current(y[0], p.stroke)
+            dz = decay_time(0.0, i_o, p.r_off, p.v_off, p.l_open)
+            dq, ds = decay_integrals(np.where(tail, dz, 0.0), i_o, p.r_off, p.v_off, p.l_open)
+            zero_time = np.where(tail, t + dz, zero_time)
+            y[3] = np.where(tail, y[3] + dq, y[3])
+            y[4] = np.where(tail, y[4] + ds, y[4])
+        active = active & ~stays
+        seat = active & (fl.end == SEAT)
+        y[2] = np.where(seat, p.restitution * np.abs(y[2]), y[2])
+        ended = active & (fl.end == BOUND)
+        status = np.where(ended, NOT_OPEN, status)
+        stall_gap = np.where(ended, y[1], stall_gap)
+        active = active & ~ended
+    status = np.where(status < 0, NOT_OPEN, status)
+    stall_gap = np.where((status == NOT_OPEN) & np.isnan(stall_gap), y[1], stall_gap)
+    return ReleaseBatch(status=status, unlatch_time=t_un, open_time=open_time,
+                        zero_time=np.where(np.isnan(zero_time), np.inf, zero_time),
+                        charge=y[3], square=y[4], stall_gap=stall_gap, bound=bound, steps=steps)
+
+
+def late_release(p: ArmatureParams, fast: ArmatureParams, i_off, lag: float,
+                 rtol: float = 1e-7) -> ReleaseBatch:
+    """:func:`release` with a late bypass (split decay with ``bypass_lead < 0``): from
+    the turn-off at t = 0 the current decays through ``p``'s off path (the slow hold
+    path) for ``lag`` s, then through ``fast``'s (the same points with the release
+    path's ``r_off``/``v_off``).
+
+    Where the armature is still seated when the bypass opens (the current above the
+    stay current), the slow part is the closed-form decay of the seated coil and the
+    rest the batched :func:`release` from there; where it lifts during the lag, the
+    point is simulated through both paths by :func:`coildrive.model.armature_sim.simulate`.
+    """
+    n = len(p)
+    i_off = np.broadcast_to(np.asarray(i_off, float), (n,)).copy()
+    i_stay = p.stay_current
+    t_un = np.where(i_off > i_stay,
+                    decay_time(np.minimum(i_stay, i_off), i_off, p.r_off, p.v_off, p.l_closed), 0.0)
+    seated = lag < t_un
+    i_lag = decay_current(lag, i_off, p.r_off, p.v_off, p.l_closed)
+    q1, s1 = decay_integrals(np.full(n, float(lag)), i_off, p.r_off, p.v_off, p.l_closed)
+    nan = np.full(n, np.nan)
+    out = dict(status=np.full(n, NOT_OPEN), unlatch_time=nan.copy(), open_time=nan.copy(),
+               zero_time=nan.copy(), charge=nan.copy(), square=nan.copy(), stall_gap=nan.copy(),
+               bound=nan.copy(), steps=np.zeros(n, int), slow_charge=q1.copy(),
+               slow_square=s1.copy(), fast_current=np.where(seated, i_lag, nan))
+    k = np.flatnonzero(seated)
+    if k.size:
+        rb = release(fast.take(k), i_lag[k], rtol)
+        for name in ("unlatch_time", "open_time", "zero_time", "bound"):
+            out[name][k] = lag + getattr(rb, name)
+        out["charge"][k] = q1[k] + rb.charge
+        out["square"][k] = s1[k] + rb.square
+        for name in ("status", "stall_gap", "steps"):
+            out[name][k] = getattr(rb, name)
+    if k.size < n:
+        from .armature_sim import simulate
+
+        for j in np.flatnonzero(~seated):
+            pj, fj = p.take(j), fast.take(j)
+            bound = lag + float(time_bound(t_un[j], pj.l_closed[0], pj.r_off[0], pj.mass[0],
+                                            pj.stroke[0], pj.damping[0],
+                                            pj.opening_force(pj.stroke)[0]))
+            tr = simulate(pj, [(lag, False, None, "hold"), (bound, False, None, "release")],
+                          state="seated", flux=float(pj.l_closed[0] * i_off[j]), rtol=rtol,
+                          release_params=fj, stop=lambda r: r.state == "open" and not r.live)
+            m = int(np.searchsorted(tr.time, lag, side="right")) - 1
+            opened = tr.state == "open" and tr.stopped
+            opens = [t for t, name in tr.log if name == "open"]
+            out["status"][j] = OPENED if opened else NOT_OPEN
+            out["unlatch_time"][j] = tr.events.get("unlatch", 0.0)
+            out["open_time"][j] = opens[-1] if opened and opens else np.inf
+            out["zero_time"][j] = tr.events.get("zero", np.inf)
+            out["charge"][j], out["square"][j] = tr.charge[-1], tr.square[-1]
+            out["slow_charge"][j], out["slow_square"][j] = tr.charge[m], tr.square[m]
+            out["fast_current"][j] = tr.current[m] if tr.time[m] >= lag else 0.0
+            out["stall_gap"][j] = np.nan if opened else tr.position[-1]
+            out["bound"][j] = bound
+    return ReleaseBatch(**out)
