@@ -137,7 +137,7 @@ _ABI = {
 #: Measured with avr-gcc 5.4.0 (-mmcu=atmega328p) and arm-none-eabi-gcc 12.2
 #: (-mcpu=cortex-m0plus -mthumb, the larger of the two Cortex-M builds);
 #: tests/test_cross_compile.py compiles again and checks these bounds.
-_CODE_BYTES = {"avr": 2700, "arm": 1750}
+_CODE_BYTES = {"avr": 2750, "arm": 1750}
 _CRC_TABLE_BYTES = 512
 UART_BITS_PER_BYTE = 10        # 8N1: start bit, 8 data bits, stop bit
 
