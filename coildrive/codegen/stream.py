@@ -132,8 +132,9 @@ _ABI = {
     "avr": {"u8": (1, 1), "u16": (2, 1), "u32": (4, 1), "ptr": (2, 1)},
     "arm": {"u8": (1, 1), "u16": (2, 2), "u32": (4, 4), "ptr": (4, 4)},
 }
-#: Code bytes of the encoder without the CRC table, at -Os: the largest .text over
-#: --samples-per-frame 1..510 and --blocks/--event-slots 2..128, rounded up to 50 bytes.
+#: Code bytes of the encoder without the CRC table, at -Os: the largest .text of the
+#: shapes tests/test_cross_compile.py builds (1, 2, 64 and 510 codes per frame, 2..128
+#: blocks and event slots, bitwise and table CRC), rounded up to 50 bytes.
 #: Measured with avr-gcc 5.4.0 (-mmcu=atmega328p) and arm-none-eabi-gcc 12.2
 #: (-mcpu=cortex-m0plus -mthumb, the larger of the two Cortex-M builds);
 #: tests/test_cross_compile.py compiles again and checks these bounds.
