@@ -11,6 +11,7 @@ from __future__ import annotations
 import dataclasses
 import hashlib
 import json
+import re
 import tomllib
 from dataclasses import dataclass
 from pathlib import Path
@@ -286,6 +287,8 @@ class Board:
     link: Link
     tick: Tick
     source: str = ""
+    ram: int = 0          # bytes of RAM on the part, 0 = not given
+    flash: int = 0        # bytes of program flash, 0 = not given
 
 
 @dataclass(frozen=True)
@@ -332,6 +335,7 @@ _LATER_FIELDS = (
     (("freewheel",), Freewheel, _FREEWHEEL_LATER),
     (("board", "freewheel"), Freewheel, _FREEWHEEL_LATER),
     (("board", "timer"), Timer, ("max_pwm_frequency",)),
+    (("board",), Board, ("ram", "flash")),
 )
 
 
@@ -624,7 +628,7 @@ def load_board(path: str | Path) -> Board:
     source = str(path)
     data = _read_toml(path)
     tables = ("timer", "adc", "sense", "supply_sense", "switch", "freewheel", "link", "tick")
-    _root_sections(source, data, tables, ("name", "description"))
+    _root_sections(source, data, tables, ("name", "description", "ram", "flash"))
     root = _Section(source, {k: v for k, v in data.items() if not isinstance(v, dict)}, "")
     name = root.text("name")
     description = root.text("description", "")
@@ -663,7 +667,22 @@ def load_board(path: str | Path) -> Board:
     tick = Tick(s.quantity("rate", "frequency", positive=True))
     s.finish()
     return Board(name, description, timer, adc, sense, supply_sense, switch, freewheel, link,
-                 tick, source)
+                 tick, source, _memory_size(root, "ram"), _memory_size(root, "flash"))
+
+
+_MEMORY_UNITS = {"": 1, "B": 1, "kB": 1000, "MB": 1000**2, "KiB": 1024, "MiB": 1024**2}
+
+
+def _memory_size(section: _Section, key: str) -> int:
+    """Bytes: a whole number, or a string with B, kB, MB (SI) or KiB, MiB (IEC 80000-13)."""
+    raw = section._get(key, 0)
+    match = re.fullmatch(r"\s*(\d+(?:\.\d*)?)\s*(B|kB|MB|KiB|MiB)?\s*", raw) if isinstance(raw, str) else None
+    value = (float(match[1]) * _MEMORY_UNITS[match[2] or ""] if match
+             else raw if isinstance(raw, int) and not isinstance(raw, bool) else -1)
+    if not (value >= 0 and value == int(value)):
+        raise section.fail(key, f"{raw!r} is not a memory size, expected whole bytes such as "
+                           "2048 or \"2 KiB\" (units B, kB, MB, KiB, MiB)")
+    return int(value)
 
 
 def resolve_board(spec: str, relative_to: Path | None = None) -> Path:

@@ -21,11 +21,17 @@ BOARDS = ROOT / "boards"
 IN_CI = os.environ.get("CI", "").lower() in ("1", "true", "yes")
 
 
+#: Debian package of each external tool the tests run (.ci/run installs them).
+PACKAGES = {"ngspice": "ngspice", "arm-none-eabi-gcc": "gcc-arm-none-eabi libnewlib-arm-none-eabi",
+            "arm-none-eabi-nm": "binutils-arm-none-eabi", "avr-gcc": "gcc-avr avr-libc",
+            "avr-nm": "binutils-avr", "avr-size": "binutils-avr", "simavr": "simavr"}
+
+
 def require_tool(name: str) -> str:
     """Path of an external tool; skip (locally) or fail (under CI=true) when it is missing."""
     path = shutil.which(name)
     if path is None:
-        message = f"{name} is not installed (apt-get install {'ngspice' if name == 'ngspice' else 'build-essential'})"
+        message = f"{name} is not installed (apt-get install {PACKAGES.get(name, 'build-essential')})"
         if IN_CI:
             pytest.fail(f"CI=true but {message}")
         pytest.skip(message)

@@ -38,6 +38,7 @@ PROGRAM = r"""
 
 #ifdef CRITICAL_CHECK
 int crit_depth, crit_max;
+unsigned long flash_reads;
 #endif
 
 static uint8_t out[1u << 20];
@@ -143,7 +144,7 @@ int main(void)
     fprintf(stderr, "rx_errors %lu\nmax_write %lu\nmax_wire %lu\n", (unsigned long)s.rx_errors,
             (unsigned long)max_write, (unsigned long)@P@_STREAM_MAX_WIRE);
 #ifdef CRITICAL_CHECK
-    fprintf(stderr, "crit_max %d\ncrit_depth %d\n", crit_max, crit_depth);
+    fprintf(stderr, "crit_max %d\ncrit_depth %d\nflash_reads %lu\n", crit_max, crit_depth, flash_reads);
 #endif
     fwrite(out, 1u, out_len, stdout);
     return 0;
@@ -152,14 +153,20 @@ int main(void)
 
 CRITICAL_CONFIG = """
 extern int crit_depth, crit_max;
+extern unsigned long flash_reads;
 #define @P@_STREAM_ENTER_CRITICAL() (crit_max = ++crit_depth > crit_max ? crit_depth : crit_max)
 #define @P@_STREAM_EXIT_CRITICAL() ((void)crit_depth--)
+#define @P@_STREAM_FLASH
+#define @P@_STREAM_FLASH_READ16(address) (flash_reads++, *(address))
 """
 
 VARIANTS = {
     "coil": dict(prefix="coil", board=load_board(BOARDS / "lab-m32-zener.toml")),
     "valve1": dict(prefix="Valve1", samples_per_frame=16, blocks=4, event_slots=4, crc_table=True),
     "big": dict(prefix="big", samples_per_frame=510, blocks=2, event_slots=2),
+    # Frame sizes 1 and 2: gcc -O2 once saw an out-of-bounds store for 1 (array-bounds).
+    "one": dict(prefix="one", samples_per_frame=1, blocks=64),
+    "two": dict(prefix="two", samples_per_frame=2, blocks=32, crc_table=True),
 }
 
 
@@ -184,7 +191,7 @@ def build(tmp_path: Path, variant: str) -> tuple[Path, dict]:
                                      .replace("N1", str(N1)).replace("N3", str(N3))
                                      .replace("EXTRA_DROPPED", str(EXTRA_DROPPED))
                                      .replace("EXTRA_EVENTS", str(EXTRA_EVENTS)))
-    defines = []
+    defines = [f"-D{up}_STREAM_SINGLE_CONTEXT"]
     if variant == "valve1":
         (tmp_path / "cfg.h").write_text(CRITICAL_CONFIG.replace("@P@", up))
         defines = ["-DCRITICAL_CHECK", f"-D{up}_STREAM_CONFIG_HEADER=\"cfg.h\""]
@@ -281,6 +288,9 @@ def test_c_encoder_round_trip(tmp_path, variant):
     if variant == "valve1":
         assert report["crit_max"] == "1", "critical sections never nest"
         assert report["crit_depth"] == "0"
+        # The CRC table is read only through the port's flash hook: one read per byte under
+        # a CRC, at least every wire byte but the frame's COBS code, CRC and delimiter.
+        assert int(report["flash_reads"]) >= len(out) - 4 * out.count(0), "table read via the hook"
 
 
 DOC_PROGRAM = r"""
@@ -331,3 +341,23 @@ def test_docs_c_snippets_compile_and_agree(tmp_path):
     for line in lines[1:]:
         _, size, encoded = line.split(" ")
         assert bytes.fromhex(encoded) == cobs_encode(vec[:int(size)]), f"{size} bytes"
+
+
+@pytest.mark.parametrize("defines, message", [
+    ([], "define COIL_STREAM_ENTER_CRITICAL() and _EXIT_CRITICAL() (mask the ADC interrupt), "
+         "or COIL_STREAM_SINGLE_CONTEXT"),
+    (["-DCOIL_STREAM_ENTER_CRITICAL()=((void)0)"], "define COIL_STREAM_ENTER_CRITICAL() and "
+                                               "COIL_STREAM_EXIT_CRITICAL() together"),
+    (["-DCOIL_STREAM_SINGLE_CONTEXT", "-DCOIL_STREAM_FLASH="],
+     "define COIL_STREAM_FLASH and COIL_STREAM_FLASH_READ16(address) together"),
+])
+def test_unsafe_port_settings_stop_the_build(tmp_path, defines, message):
+    """No silent race: a build that neither masks interrupts nor states single-context use
+    fails (gcc #error), as does half of a hook pair."""
+    gcc = require_tool("gcc")
+    for name, text in render_stream_encoder(crc_table=True).items():
+        (tmp_path / name).write_text(text)
+    r = subprocess.run([gcc, *FLAGS, *defines, "-fsyntax-only", str(tmp_path / "coil_stream.c")],
+                       capture_output=True, text=True, timeout=60)
+    assert r.returncode != 0 and message in r.stderr, r.stderr
+    assert r.stderr.count("error:") == 1, f"one clear error, not a cascade:\n{r.stderr}"

@@ -22,8 +22,13 @@ def firmware_stream(
     crc_table: bool = typer.Option(False, "--crc-table/--crc-bitwise", help="CRC by a 512-byte table or by a bitwise loop."),
     board: Optional[str] = typer.Option(None, "--board", "-b", help="Bundled board name or board file: adds its sampling macros."),
 ) -> None:
-    """Write the C encoder that streams ADC samples and events over the bench link."""
-    from ..codegen.stream import render_stream_encoder
+    """Write the C encoder that streams ADC samples and events over the bench link.
+
+    Prints the RAM and flash it takes; with a board file that gives ``ram`` / ``flash`` it
+    warns above 75 % and refuses above 100 %, and it warns when the board's sample rate
+    needs more than the link carries.
+    """
+    from ..codegen.stream import StreamView, budget_notes, render_stream_encoder
 
     loaded = None
     if board is not None:
@@ -31,6 +36,8 @@ def firmware_stream(
         loaded = load_board(resolve_board(board))
     files = render_stream_encoder(prefix, samples_per_frame=samples_per_frame, blocks=blocks,
                                   event_slots=event_slots, crc_table=crc_table, board=loaded)
+    notes = budget_notes(StreamView(prefix, samples_per_frame, blocks, event_slots, crc_table, loaded),
+                         loaded)
     if out_dir.exists() and not out_dir.is_dir():
         raise InputError(str(out_dir), "", "exists and is not a folder")
     try:
@@ -44,3 +51,5 @@ def firmware_stream(
         except OSError as err:
             raise InputError(str(path), "", f"cannot write: {err.strerror}") from None
         status(f"wrote {path}")
+    for note in notes:
+        status(note)

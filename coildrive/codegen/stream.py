@@ -124,6 +124,111 @@ class StreamView:
         self.statuses = [(s.name, int(s)) for s in ReplyStatus]
 
 
+# --------------------------------------------------------------------------- memory
+#: (size, alignment) of the C types the encoder's state uses, per ABI: avr-gcc packs
+#: everything on byte boundaries with 2-byte pointers; the Arm EABI aligns each type to its
+#: size with 4-byte pointers (AAPCS, "Fundamental Data Types").
+_ABI = {
+    "avr": {"u8": (1, 1), "u16": (2, 1), "u32": (4, 1), "ptr": (2, 1)},
+    "arm": {"u8": (1, 1), "u16": (2, 2), "u32": (4, 4), "ptr": (4, 4)},
+}
+#: Code bytes of the encoder without the CRC table, at -Os: the largest .text of the
+#: shapes tests/test_cross_compile.py builds (1, 2, 64 and 510 codes per frame, 2..128
+#: blocks and event slots, bitwise and table CRC), rounded up to 50 bytes.
+#: Measured with avr-gcc 5.4.0 (-mmcu=atmega328p) and arm-none-eabi-gcc 12.2
+#: (-mcpu=cortex-m0plus -mthumb, the larger of the two Cortex-M builds);
+#: tests/test_cross_compile.py compiles again and checks these bounds.
+_CODE_BYTES = {"avr": 2750, "arm": 1750}
+_CRC_TABLE_BYTES = 512
+UART_BITS_PER_BYTE = 10        # 8N1: start bit, 8 data bits, stop bit
+
+
+def _layout(abi: dict, fields: list[tuple[tuple[int, int], int]]) -> tuple[int, int]:
+    """(size, alignment) of a C struct of ``(type, count)`` fields, padded as C pads it."""
+    offset, align = 0, 1
+    for (size, field_align), count in fields:
+        offset = -(-offset // field_align) * field_align + size * count
+        align = max(align, field_align)
+    return -(-offset // align) * align, align
+
+
+@dataclass(frozen=True)
+class MemoryUse:
+    """RAM and flash bytes the encoder takes on one family of parts.
+
+    ``ram`` is the ``<prefix>_stream_t`` object (computed from the buffer sizes with the
+    ABI's alignment rules) plus, on 8-bit Harvard parts, the CRC table, which the default
+    plain ``const`` puts in RAM; stack is not counted (see docs/firmware.md).
+    ``flash`` is the measured code bound plus the CRC table.
+    """
+
+    family: str
+    ram: int
+    flash: int
+    state: int
+
+
+def memory_use(view: "StreamView") -> list[MemoryUse]:
+    """What the encoder of ``view`` takes on an 8-bit AVR and on a 32-bit Cortex-M."""
+    result = []
+    for family, abi in (("8-bit AVR", _ABI["avr"]), ("Cortex-M", _ABI["arm"])):
+        u8, u16, u32, ptr = abi["u8"], abi["u16"], abi["u32"], abi["ptr"]
+        block = _layout(abi, [(u32, 1), (u16, 1), (u16, view.samples_per_frame)])
+        event = _layout(abi, [(u8, 1), (u32, 1), (u32, 1)])
+        state, _ = _layout(abi, [
+            (block, view.blocks), (u8, 2), (u16, 1), (u32, 3), (event, view.event_slots), (u8, 2),
+            (u32, 1), (ptr, 2), (u16, 1), (u8, 1), (u8, view.max_raw), (u8, view.max_wire),
+            (u8, view.rx_max), (u8, 2), (u32, 1)])
+        harvard = family == "8-bit AVR"
+        table = _CRC_TABLE_BYTES if view.crc_table else 0
+        code = _CODE_BYTES["avr" if harvard else "arm"]
+        result.append(MemoryUse(family, state + (table if harvard else 0), code + table, state))
+    return result
+
+
+def wire_bytes_per_sample(samples_per_frame: int) -> float:
+    """Bytes on the wire per sample in full SAMPLES frames (COBS worst case, delimiter)."""
+    raw = protocol.HEADER_SIZE + protocol.SAMPLES_HEADER + 2 * samples_per_frame + protocol.CRC_SIZE
+    return (cobs_encoded_size(raw) + 1) / samples_per_frame
+
+
+def budget_notes(view: "StreamView", board: Board | None) -> list[str]:
+    """Lines to show: the memory taken, then warnings about the board's RAM, flash and link.
+
+    Raises
+    ------
+    InputError
+        naming the board file and ``ram`` or ``flash`` when the encoder does not fit.
+    """
+    uses = memory_use(view)
+    table = (f"; the CRC table is in RAM on AVR unless {view.macro}_STREAM_FLASH puts it in flash"
+             if view.crc_table else "")
+    notes = ["memory: " + "; ".join(f"{u.family} RAM {u.ram:,} B, flash {u.flash:,} B" for u in uses)
+             + f" (the {view.lower}_stream_t object and -Os code; stack not counted{table})"]
+    if board is None:
+        return notes
+    source = board.source or board.name
+    for key, have in (("ram", board.ram), ("flash", board.flash)):
+        worst = max(uses, key=lambda u: getattr(u, key))
+        need = getattr(worst, key)
+        if not have:
+            continue
+        share = f"{need:,} B of the board's {have:,} B {key} ({100 * need / have:.1f} %, {worst.family})"
+        if need > have:
+            raise InputError(source, key, f"the stream encoder needs {share}: use --crc-bitwise, fewer "
+                             "--blocks or a smaller --samples-per-frame")
+        if need > 0.75 * have:
+            notes.append(f"warning: the stream encoder takes {share}, above 75 %")
+    need = board.adc.sample_rate * wire_bytes_per_sample(view.samples_per_frame)
+    have = board.link.baud / UART_BITS_PER_BYTE
+    if need > have:
+        notes.append(f"warning: streaming every sample needs {need:,.0f} B/s ({board.adc.sample_rate:,.0f} "
+                     f"samples/s x {wire_bytes_per_sample(view.samples_per_frame):.2f} B), the link "
+                     f"carries {have:,.0f} B/s at {board.link.baud} baud (8N1): the ring overflows "
+                     "unless you stream bursts shorter than the buffer")
+    return notes
+
+
 def _rows(values: list[int], per_row: int = 8) -> list[str]:
     cells = [f"0x{v:04X}u" for v in values]
     rows = []
