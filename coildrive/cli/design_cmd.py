@@ -88,6 +88,7 @@ def simulate_command(
     r_factor: float = typer.Option(1.0, "--r-factor", help="Coil resistance factor (1.07 = +7 %)."),
     l_factor: float = typer.Option(1.0, "--l-factor", help="Coil inductance factor."),
     points: int = typer.Option(8, "--points", help="Samples per PWM segment (the peak and the decay get 40x)."),
+    plot: Optional[Path] = typer.Option(None, "--plot", help="Also write a PNG of the actuation (current; gap and velocity with [armature]; phases marked)."),
 ) -> None:
     """Simulate one actuation with the design's peak and hold: on, peak, hold, off, decay."""
     from ..design import actuation, design
@@ -108,7 +109,8 @@ def simulate_command(
     if d.pull_in.peak_ticks == 0:
         raise InputError(str(drive), "pull_in.current", "is never reached at the worst corner, "
                          "so the design has no peak time to simulate")
-    w = actuation(d, v, t, h, r_factor, l_factor, points)
+    w = actuation(d, v, t, h, r_factor, l_factor, points,
+                  label=f"{v:g} V, coil {t:g} degC, R x{r_factor:g}, L x{l_factor:g}")
     write_atomic(csv, w.to_csv())
     status(f"wrote {csv}: {len(w.time)} samples, peak {d.pull_in.peak_time_s * 1e3:.4g} ms, "
            f"hold duty {d.hold.duty:.4f} at {d.hold.frequency_hz:.6g} Hz, off at "
@@ -129,6 +131,12 @@ def simulate_command(
                f"{when('unlatch')}, open at {when('open')} (columns position_m, velocity_m_s)")
         if "seat" not in ev:
             status("armature: not seated by the end of the peak at this point")
+    if plot is not None:
+        from ..design.plot import plot_actuation
+        write_atomic(plot, plot_actuation(d, w, f"{d.drive.name} on {d.drive.board.name}: simulated at "
+                                          f"{v:g} V, coil {t:g} degC\npeak {d.pull_in.peak_time_s * 1e3:.3g} ms, "
+                                          f"hold duty {d.hold.duty:.3f} at {d.hold.frequency_hz / 1e3:.4g} kHz"))
+        status(f"wrote plot {plot}")
 
 
 @user_errors

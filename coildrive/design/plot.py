@@ -12,16 +12,30 @@ def plot_design(d: Design, waveforms: dict) -> bytes:
     ``waveforms``: the actuations to draw by name, as
     :func:`coildrive.design.design_waveforms` makes them (``"worst"`` gives the phases).
     """
+    title = (f"{d.drive.name} on {d.drive.board.name}: duty {d.hold.duty:.3f} at "
+             f"{d.hold.frequency_hz / 1e3:.4g} kHz, peak {d.pull_in.peak_time_s * 1e3:.3g} ms")
+    return _plot(d, waveforms, "worst", title)
+
+
+def plot_actuation(d: Design, w, title: str) -> bytes:
+    """PNG bytes of one simulated actuation ``w`` of ``d`` (``coildrive simulate --plot``):
+    the current with the phases marked, and with an armature its gap and velocity."""
+    return _plot(d, {"simulated": w}, "simulated", title, velocity=True)
+
+
+def _plot(d: Design, waveforms: dict, phases: str, title: str, velocity: bool = False) -> bytes:
+    """The current of ``waveforms`` (by name) with the phases of ``waveforms[phases]``, the
+    pull-in/hold/drop-out levels, and the armature panel when the design has one."""
     moving = d.armature is not None
     fig = agg_figure(figsize=(9, 7.5 if moving else 5), dpi=110)
     if moving:
         ax, ax_x = fig.subplots(2, 1, sharex=True, gridspec_kw={"height_ratios": [3, 2]})
     else:
         ax = fig.add_subplot(1, 1, 1)
-    colours = {"nominal": "tab:blue", "worst": "tab:red"}
+    colours = {"nominal": "tab:blue", "worst": "tab:red", "simulated": "tab:blue"}
     for key, w in waveforms.items():
         ax.plot(w.time * 1e3, w.current, lw=0.9, color=colours.get(key), label=w.label)
-    w = waveforms["worst"]
+    w = waveforms[phases]
     ev = w.events
     split = w.bypass_on is not None
     ax.axvspan(0, ev["hold"] * 1e3, color="tab:orange", alpha=0.12, label="peak")
@@ -39,11 +53,12 @@ def plot_design(d: Design, waveforms: dict) -> bytes:
     ax.text(0, d.release.dropout_current_a, " drop-out", va="bottom", fontsize=8)
     if moving:
         _armature_panel(d, waveforms, ax, ax_x, colours)
+        if velocity:
+            _velocity_trace(waveforms, ax_x, colours)
     else:
         ax.set_xlabel("time [ms]")
     ax.set_ylabel("coil current [A]")
-    ax.set_title(f"{d.drive.name} on {d.drive.board.name}: duty {d.hold.duty:.3f} at "
-                 f"{d.hold.frequency_hz / 1e3:.4g} kHz, peak {d.pull_in.peak_time_s * 1e3:.3g} ms")
+    ax.set_title(title)
     ax.grid(alpha=0.3)
     ax.legend(fontsize=7, loc="upper right")
     return png_bytes(fig)
@@ -85,3 +100,11 @@ def _armature_panel(d: Design, waveforms: dict, ax, ax_x, colours: dict) -> None
     ax_x.set_ylim(-0.05 * d.armature.stroke_m * 1e3, 1.1 * d.armature.stroke_m * 1e3)
     ax_x.grid(alpha=0.3)
     ax_x.legend(fontsize=7, loc="center right")
+
+
+def _velocity_trace(waveforms: dict, ax_x, colours: dict) -> None:
+    """The armature's velocity on a second axis of the gap panel (dotted)."""
+    ax_v = ax_x.twinx()
+    for key, w in waveforms.items():
+        ax_v.plot(w.time * 1e3, w.velocity, lw=0.7, ls=":", color=colours.get(key))
+    ax_v.set_ylabel("velocity [m/s] (dotted; < 0 closing)", fontsize=8)
