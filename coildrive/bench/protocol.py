@@ -29,25 +29,15 @@ from typing import Callable, Iterable
 
 import numpy as np
 
-from .framing import cobs_decode_or_none, cobs_encode, cobs_encoded_size
+from .framing import c_cobs_decoder, cobs_decode_or_none, cobs_encode, cobs_encoded_size
 from .messages import (Command, Event, EventKind, Info, Message, Opcode, Reply, ReplyStatus,
                        Samples)
-
-try:
-    # The `cobs` package's C decoder: 4x our Python one on zero-rich frames, and the same
-    # result on every input (tests/test_protocol_cobs.py runs both on fuzzed streams;
-    # the numbers are in benchmarks/bench_decoder.py). Imported here only: the CLI's
-    # start-up does not import the bench link.
-    from cobs.cobs import DecodeError as _CobsCError
-    from cobs.cobs import decode as _cobs_c_decode
-except ImportError:  # pragma: no cover - a dependency; ours is the reference anyway
-    _cobs_c_decode = None
 
 __all__ = [
     "FrameType", "HEADER_SIZE", "CRC_SIZE", "MAX_PAYLOAD", "MAX_FRAME", "MAX_ENCODED",
     "MAX_SAMPLES_PER_FRAME", "MAX_FIRMWARE_ID", "PROTOCOL_VERSION", "SEQ_HALF_RANGE",
     "encode_frame", "encode_message", "frame_payload", "FrameEncoder", "FrameDecoder",
-    "DecoderStats", "DecoderAccount", "DEFAULT_COBS_DECODE", "NO_VALUE", "LOST", "CRC_FAILED", "MALFORMED",
+    "DecoderStats", "DecoderAccount", "NO_VALUE", "LOST", "CRC_FAILED", "MALFORMED",
     "Samples", "Event", "EventKind", "Info", "Command", "Opcode", "Reply",
     "ReplyStatus", "Message",
 ]
@@ -352,20 +342,6 @@ _UNKNOWN = object()   # _parse: an intact frame of a type this version does not 
 _INSIDE, _START, _END = 0, 1, 2   # where a piece lies: between delimiters, before the first, at the end
 
 
-def _c_cobs_decode(piece: bytes) -> bytes | None:
-    try:
-        return _cobs_c_decode(piece)
-    except _CobsCError:
-        return None
-
-
-DEFAULT_COBS_DECODE: Callable[[bytes], bytes | bytearray | None] = (
-    cobs_decode_or_none if _cobs_c_decode is None else _c_cobs_decode)
-"""The COBS decoder :class:`FrameDecoder` uses by default: the ``cobs`` package's C
-decoder where it is installed, else :func:`~coildrive.bench.framing.cobs_decode_or_none`
-(the reference the tests compare it with)."""
-
-
 class FrameDecoder(DecoderAccount):
     """Streaming decoder of binary frames: ``feed(bytes) -> list of messages``.
 
@@ -383,8 +359,11 @@ class FrameDecoder(DecoderAccount):
 
     Parameters
     ----------
-    cobs_decode : ``bytes -> bytes | None`` (``None``: not valid COBS); default
-        :data:`DEFAULT_COBS_DECODE`.
+    cobs_decode : ``bytes -> bytes | None`` (``None``: not valid COBS). Default: the
+        ``cobs`` package's C decoder (:func:`~coildrive.bench.framing.c_cobs_decoder`),
+        else our :func:`~coildrive.bench.framing.cobs_decode_or_none`, the reference the
+        tests compare it with (same result on every input; benchmarks/bench_decoder.py
+        measures both).
 
     Examples
     --------
@@ -398,7 +377,7 @@ class FrameDecoder(DecoderAccount):
 
     def __init__(self, cobs_decode: Callable[[bytes], bytes | bytearray | None] | None = None) -> None:
         super().__init__()
-        self._cobs = cobs_decode or DEFAULT_COBS_DECODE
+        self._cobs = cobs_decode or c_cobs_decoder() or cobs_decode_or_none
         self._pending = b""
         self._discarding = False   # inside a piece that grew past MAX_ENCODED
         self._discarded = 0        # bytes of that piece so far
