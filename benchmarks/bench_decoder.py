@@ -8,9 +8,9 @@ would, and prints MB/s and the ratio to the line rate of 3 Mbaud with 8N1 framin
 (zeros while the switch is off), mid-scale codes with no zero byte, and all-zero codes
 (the worst case for COBS: a block per zero byte). Each case runs both COBS decoders in
 the same process, alternating, best of ``--repeat`` in CPU time of this process (the
-machine is shared: wall time would count other processes' load); then the COBS step alone on the
-worst case (zero-rich 64-sample frames), and a check that both decoders give the same
-messages and counters on a damaged stream.
+machine is shared: wall time would count other processes' load); then the COBS step
+alone on the worst case (zero-rich 64-sample frames), and a check that both decoders
+give the same messages and counters on a damaged stream.
 """
 
 from __future__ import annotations
