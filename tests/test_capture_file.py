@@ -184,12 +184,58 @@ def test_csv_export():
     cap = _capture()
     lines = cap.to_csv().splitlines()
     assert lines[0] == "index,time_s,adc_code,current_a,event"
-    assert len(lines) == len(cap) + 1
+    assert len(lines) == len(cap) + 1, "every event of _capture() sits on a sample"
     row = lines[11].split(",")
     assert row[0] == "10" and float(row[1]) == pytest.approx(10 / 200e3) and row[4] == "on"
-    assert float(row[3]) == pytest.approx(cap.code[10] * 4e-4, rel=1e-5)
+    assert float(row[3]) == pytest.approx((cap.code[10] + 0.5) * 4e-4, rel=1e-5), "read mid-step"
+    assert lines[601].endswith(",switch=1") and lines[701].endswith(",temperature=-12500")
     blank = Capture.from_codes([1, 2], sample_rate_hz=10.0).to_csv().splitlines()
     assert blank[1] == "0,0,1,," and blank[2] == "1,0.1,2,,"
+
+
+def test_csv_event_column_names_values_and_keeps_events_without_a_sample():
+    # docs/capture-format.md, CSV: `name` for on/peak_end/off, `name=value` for the rest,
+    # `;` between events at one index, a row of its own for an event with no sample.
+    events = (CaptureEvent(0, EventKind.PAUSE, 0), CaptureEvent(2, EventKind.ON),
+              CaptureEvent(2, EventKind.SUPPLY, 2931), CaptureEvent(3, EventKind.OVERRUN, 2),
+              CaptureEvent(4, EventKind.EVENTS_LOST, 1), CaptureEvent(6, EventKind.PEAK_END),
+              CaptureEvent(6, 12, 5), CaptureEvent(9, EventKind.OFF), CaptureEvent(9, EventKind.SUPPLY, 0))
+    cap = Capture.from_codes([5, 6, 7, 8], index=np.array([1, 2, 5, 6]), events=events,
+                             sample_rate_hz=1000.0, amps_per_code=0.5)
+    rows = [line.split(",") for line in cap.to_csv().splitlines()[1:]]
+    assert [(r[0], r[2], r[4]) for r in rows] == [
+        ("0", "", "pause=0"),
+        ("1", "5", ""),
+        ("2", "6", "on;supply=2931"),
+        ("3", "", "overrun=2"),
+        ("4", "", "events_lost=1"),
+        ("5", "7", ""),
+        ("6", "8", "peak_end;kind-12=5"),
+        ("9", "", "off;supply=0"),
+    ]
+    assert [r[3] for r in rows if r[2]] == ["2.75", "3.25", "3.75", "4.25"], "(code + 0.5) x 0.5 A"
+    assert all(r[3] == "" for r in rows if not r[2])
+
+
+def test_current_is_read_mid_step_like_the_analysis():
+    # A truncating converter (floor: the ADC convention of coildrive.bench.synth and the
+    # design) gives code k for currents in [k, k + 1) steps. Over a slow ramp its error
+    # is uniform over one step: read at the code the mean error is -0.5 step, read at the
+    # middle of the step 0 (the mean of a uniform distribution).
+    apc = 1e-3
+    true_a = np.linspace(0.0005, 2.0, 200_001)
+    codes = np.floor(true_a / apc).astype(np.uint16) + 7
+    cap = Capture.from_codes(codes, sample_rate_hz=1e6, amps_per_code=apc, zero_code=7)
+    err = cap.current - true_a
+    assert abs(float(np.mean(err[true_a > apc]))) < 0.01 * apc, "mid-step reading is unbiased"
+    assert float(np.max(np.abs(err[true_a > apc]))) <= 0.5 * apc * (1 + 1e-9)
+    assert float(np.mean((codes.astype(float) - 7) * apc - true_a)) < -0.45 * apc, \
+        "reading at the code is half a step low: the reading this test rules out"
+    assert np.all(cap.current[codes <= 7] == 0.0), "at or below zero_code: zero current"
+    # the same reading as the analysis of check and fit
+    from coildrive.bench.analysis import _Reader
+
+    np.testing.assert_array_equal(_Reader(cap, 1e6, apc, 7).amps(0, len(cap)), cap.current)
 
 
 def test_text_mode_capture(tmp_path):

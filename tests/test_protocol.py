@@ -358,9 +358,114 @@ def test_finish_decodes_a_last_frame_without_delimiter():
     assert len(dec.feed(f[0] + f[1][:-1])) == 1
     assert len(dec.finish()) == 1
     assert dec.stats.frames == 2
+
+
+def test_unfinished_last_frame_is_tail_bytes_not_an_error():
+    # docs/protocol.md section 6: a recording that stops part-way through a frame leaves
+    # bytes that fail COBS or CRC; like the bytes before the first delimiter, they say
+    # nothing about the link.
+    f = frames(3)
     dec = FrameDecoder()
-    dec.feed(f[0] + f[1][:10])
-    assert dec.finish() == [] and dec.stats.crc_errors + dec.stats.malformed_frames == 1
+    dec.feed(f[0] + f[1] + f[2][:10])
+    assert dec.finish() == []
+    s = dec.stats
+    assert (s.tail_bytes, s.crc_errors, s.malformed_frames, s.lost_frames) == (10, 0, 0, 0)
+    # the same bytes with a delimiter after them are a damaged frame
+    dec = FrameDecoder()
+    dec.feed(f[0] + f[1] + f[2][:10] + b"\x00" + f[2])
+    s = dec.stats
+    assert (s.tail_bytes, s.crc_errors + s.malformed_frames) == (0, 1)
+    # an over-long piece cut by the end of the stream is tail bytes too
+    dec = FrameDecoder()
+    dec.feed(f[0] + b"\x55" * 3000)
+    dec.finish()
+    assert (dec.stats.tail_bytes, dec.stats.malformed_frames) == (3000, 0)
+
+
+def test_whole_last_frame_of_a_wrong_size_is_malformed_at_the_end_too():
+    dec = FrameDecoder()
+    dec.feed(frames(1)[0] + encode_frame(FrameType.EVENT, 1, b"\x01" * 8)[:-1])
+    dec.finish()
+    assert (dec.stats.malformed_frames, dec.stats.tail_bytes) == (1, 0)
+
+
+def test_wrong_size_frame_repeating_the_sequence_number_is_malformed_not_a_duplicate():
+    # docs/protocol.md section 6: the payload-size check makes a frame malformed, and a
+    # frame that fails a check has no trusted sequence number (section 5), so it cannot
+    # be a duplicate. Issue 13, point 2.
+    f = frames(2)                                        # seq 0 and 1
+    wrong = encode_frame(FrameType.EVENT, 0, b"\x01" * 8)   # seq 0 again, one byte short
+    dec = FrameDecoder()
+    out = dec.feed(f[0] + wrong + f[1])
+    assert [m.seq for m in out] == [0, 1]
+    s = dec.stats
+    assert (s.malformed_frames, s.duplicate_frames, s.lost_frames) == (1, 0, 0)
+    # with a fresh sequence number: malformed too, and its number is not trusted (lost)
+    fresh = FrameEncoder()
+    a, b = fresh.event(EventKind.ON, 0), encode_frame(FrameType.EVENT, 1, b"\x01" * 8)
+    dec = FrameDecoder()
+    dec.feed(a + b + encode_message(Event(EventKind.OFF, 5), 2))
+    s = dec.stats
+    assert (s.malformed_frames, s.duplicate_frames, s.lost_frames) == (1, 0, 1)
+
+
+@pytest.mark.parametrize("frame_type, payload", [
+    (FrameType.EVENT, b"\x01" * 10),                  # a byte too many
+    (FrameType.REPLY, b"\x01" * 7),
+    (FrameType.COMMAND, b"\x01" * 6),
+    (FrameType.INFO, bytes(17)),                       # the right size, rate 0 and 0 bits
+    (FrameType.SAMPLES, b"\x00" * 5),
+])
+def test_a_frame_failing_its_layout_never_takes_part_in_the_sequence(frame_type, payload):
+    enc = FrameEncoder()
+    good = enc.event(EventKind.ON, 0)
+    bad = encode_frame(frame_type, 0, payload)
+    dec = FrameDecoder()
+    out = dec.feed(good + bad + bad + encode_message(Event(EventKind.OFF, 1), 1))
+    assert len(out) == 2
+    s = dec.stats
+    assert (s.malformed_frames, s.duplicate_frames, s.lost_frames, s.sequence_restarts) == (2, 0, 0, 0)
+
+
+def raw_wire(frame_type: int, seq: int, payload: bytes) -> bytes:
+    """A frame built without the encoder's size limit (COBS, CRC, delimiter)."""
+    raw = struct.pack("<BH", frame_type, seq) + payload
+    return cobs_encode(raw + struct.pack("<H", crc_model(raw, **CCITT_FALSE))) + b"\x00"
+
+
+@pytest.mark.parametrize("codes", [511, 512])
+def test_frame_above_the_maximum_size_is_malformed(codes):
+    # docs/protocol.md section 3.1: payload <= 1024 bytes, a frame <= 1029 bytes; zero
+    # codes keep its COBS form short enough (n + 1 bytes) to reach the decoder whole.
+    payload = struct.pack("<I", 0) + bytes(2 * codes)
+    wire = raw_wire(FrameType.SAMPLES, 1, payload)
+    assert len(wire) - 1 <= protocol.MAX_ENCODED
+    dec = FrameDecoder()
+    out = dec.feed(frames(1)[0] + wire + encode_message(Event(EventKind.OFF, 1), 2))
+    assert [type(m).__name__ for m in out] == ["Samples", "Event"]
+    s = dec.stats
+    assert (s.malformed_frames, s.crc_errors, s.unknown_frames, s.lost_frames) == (1, 0, 0, 1)
+
+
+def test_unknown_type_above_the_maximum_size_is_malformed_not_unknown():
+    wire = raw_wire(0x30, 1, bytes(1100))
+    dec = FrameDecoder()
+    dec.feed(frames(1)[0] + wire)
+    assert (dec.stats.malformed_frames, dec.stats.unknown_frames) == (1, 0)
+
+
+def test_counted_says_where_frames_were_lost_or_damaged():
+    f = frames(6)
+    bad = bytearray(f[3])
+    bad[2] ^= 0x04
+    dec = FrameDecoder()
+    out = dec.feed(f[0] + f[2] + bytes(bad) + f[4] + f[5][:-1])
+    assert [m.seq for m in out] == [0, 2, 4]
+    # frame 1 lost before message 1; frame 3 failed its CRC before message 2, and shows
+    # up lost when frame 4 arrives
+    assert dec.counted() == [(1, protocol.LOST, 1), (2, protocol.CRC_FAILED, 1), (2, protocol.LOST, 1)]
+    dec.feed(b"\x00")
+    assert dec.counted() == [], "each call says what it counted itself"
 
 
 def test_empty_frames_and_idle_delimiters_are_ignored():

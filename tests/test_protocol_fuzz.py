@@ -190,3 +190,35 @@ def test_dropped_frames_only_lost_count_is_the_number_dropped(sent, dropped, cut
     assert len(out) == len(keep)
     assert dec.stats.lost_frames == keep[-1] - keep[0] + 1 - len(keep)
     assert dec.stats.errors == dec.stats.lost_frames
+
+
+@FUZZ
+@given(sent_stream(), st.lists(damage, min_size=25, max_size=25), st.integers(0, 200),
+       st.lists(st.integers(0, 20000), max_size=8))
+def test_end_of_stream_is_tail_bytes_or_a_whole_frame_never_an_error(sent, ops, cut_end, cuts):
+    # docs/protocol.md section 6: the bytes after the last delimiter, when the stream
+    # ends, are decoded when they are a whole frame, else counted as tail bytes.
+    start_seq, messages = sent
+    enc = FrameEncoder(start_seq)
+    frames = [enc.encode(m) for m in messages]
+    originals = {f[:-1]: i for i, f in enumerate(frames)}
+    stream = b"".join(damage_frame(f, op) for f, op in zip(frames, ops))
+    stream = stream[:max(0, len(stream) - cut_end)]
+    dec = FrameDecoder()
+    out = feed_in_chunks(dec, stream, cuts)
+    before = dec.stats
+    last = stream.rsplit(b"\x00", 1)[-1] if b"\x00" in stream else None
+    assume(last is not None)                      # no delimiter at all: sync bytes instead
+    out_end = dec.finish()
+    after = dec.stats
+    sent_index = originals.get(last)
+    if last and sent_index is None:
+        assume(not accidentally_valid(last))
+    assert (after.crc_errors, after.malformed_frames) == (before.crc_errors, before.malformed_frames)
+    if sent_index is None:
+        assert out_end == [] and after.tail_bytes == len(last)
+    elif out and out[-1].seq == (start_seq + sent_index) & 0xFFFF:     # a duplicate, cut
+        assert out_end == [] and after.duplicate_frames == before.duplicate_frames + 1
+        assert after.tail_bytes == 0
+    else:
+        assert out_end == [messages[sent_index]] and after.tail_bytes == 0

@@ -3,10 +3,12 @@
 from __future__ import annotations
 
 import numpy as np
+import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from coildrive.bench import Event, EventKind, Info, Samples, TextLineDecoder, format_text
+from coildrive.bench.protocol import MALFORMED, NO_VALUE
 from coildrive.bench.textline import MAX_LINE
 
 
@@ -79,16 +81,58 @@ def test_overlong_line_is_one_malformed_line_with_bounded_memory():
     assert dec.stats.malformed_frames == 1
 
 
-def test_finish_reads_a_last_line_without_newline():
+def test_finish_does_not_read_a_last_line_without_newline():
+    # docs/protocol.md section 7: a recording that stops mid-line would turn "2,2051"
+    # into the valid but wrong "2,20"; the cut line is counted as tail bytes instead.
     dec = TextLineDecoder()
-    assert dec.feed(b"1,1\n2,2") == [Samples(1, np.array([1]))]
-    assert dec.finish() == [Samples(2, np.array([2]))]
+    assert dec.feed(b"1,1\n2,20") == [Samples(1, np.array([1]))]
+    assert dec.finish() == []
+    s = dec.stats
+    assert (s.samples, s.tail_bytes, s.malformed_frames) == (1, 4, 0)
+    dec = TextLineDecoder()
+    dec.feed(b"1,1\n" + b"7" * (MAX_LINE + 50))             # an over-long unfinished line
+    dec.finish()
+    assert (dec.stats.tail_bytes, dec.stats.malformed_frames) == (MAX_LINE + 50, 0)
+
+
+@pytest.mark.parametrize("line", [
+    b"temperature,7200",          # a kind with a value, the value missing
+    b"supply,7200",
+    b"pause,7200",
+    b"peak_end,7200,5",           # a kind without a value, given one
+    b"on,7200,0",
+    b"off,7200,1",
+])
+def test_event_lines_with_a_value_missing_or_extra_are_malformed(line):
+    # docs/protocol.md section 7: on, peak_end, off are `<kind>,<index>`; the other
+    # kinds are `<kind>,<index>,<value>`; anything else makes the line malformed.
+    # Issue 13, point 3.
+    dec = TextLineDecoder()
+    out = dec.feed(b"10,1\n" + line + b"\n11,1\n")
+    assert not any(isinstance(m, Event) for m in out)
+    assert (dec.stats.malformed_frames, dec.stats.samples) == (1, 2)
+
+
+def test_format_text_writes_a_value_exactly_for_kinds_that_take_one():
+    assert format_text(Event(EventKind.SUPPLY, 7, 0)) == "supply,7,0\n"
+    assert format_text(Event(EventKind.OFF, 7)) == "off,7\n"
+    with pytest.raises(ValueError, match="no value"):
+        format_text(Event(EventKind.ON, 7, 3))
+
+
+def test_a_malformed_line_is_counted_where_it_was():
+    dec = TextLineDecoder()
+    out = dec.feed(b"10,1\n11,1\nbad\n12,1\n")
+    assert out == [Samples(10, np.array([1, 1])), Samples(12, np.array([1]))]
+    assert dec.counted() == [(1, MALFORMED, 1)]
 
 
 @settings(max_examples=100, deadline=None)
 @given(st.lists(st.one_of(
     st.tuples(st.integers(0, 2**32 - 1), st.lists(st.integers(0, 65535), min_size=1, max_size=20)),
-    st.tuples(st.sampled_from(list(EventKind)), st.integers(0, 2**32 - 1), st.integers(-2**31, 2**31 - 1)),
+    st.tuples(st.sampled_from(sorted(set(EventKind) - NO_VALUE)), st.integers(0, 2**32 - 1),
+              st.integers(-2**31, 2**31 - 1)),
+    st.tuples(st.sampled_from(sorted(NO_VALUE)), st.integers(0, 2**32 - 1), st.just(0)),
 ), max_size=20), st.lists(st.integers(0, 5000), max_size=10))
 def test_format_then_decode_round_trip(items, cuts):
     messages = [Samples(i[0], np.array(i[1], dtype="<u2")) if len(i) == 2 else Event(*i)
@@ -96,7 +140,7 @@ def test_format_then_decode_round_trip(items, cuts):
     text = "".join(format_text(m) for m in messages).encode()
     dec = TextLineDecoder()
     points = sorted({min(c, len(text)) for c in cuts} | {0, len(text)})
-    out = [m for a, b in zip(points, points[1:]) for m in dec.feed(text[a:b])]
+    out = [m for a, b in zip(points, points[1:]) for m in dec.feed(text[a:b])] + dec.finish()
     # A sample run may be split by a chunk boundary or joined to the next run that
     # continues it; compare the sample streams and the events.
     def flat(ms):

@@ -9,10 +9,15 @@ Layout (version 1, all little-endian; full description in ``docs/capture-format.
 Record kinds (:class:`RecordKind`): ``1`` one ADC sample (``value`` = code, ``index`` =
 sample index); ``2`` an event (``aux`` = event kind as on the bench link: 1 on, 2 peak
 end, 3 off, 4 position switch, ..., 9 pause; ``value`` = its value when 0..65535); ``3`` frames
-lost on the link (``value`` = how many, ``index`` = first sample index received after
-them); ``4`` frame errors (``aux`` 0 = CRC failures, 1 = malformed frames; ``value`` =
-how many); ``5`` the high 16 bits of the preceding event's value, for values outside
-0..65535 (the event's value is then the signed 32-bit ``value | high << 16``).
+lost on the link (``value`` = how many); ``4`` frame errors (``aux`` 0 = CRC failures,
+1 = malformed frames; ``value`` = how many); ``5`` the high 16 bits of the preceding
+event's value, for values outside 0..65535 (the event's value is then the signed 32-bit
+``value | high << 16``). Gap and error records sit before the first sample received
+after the frames they count, and carry its index (one past the last sample when none
+came after them).
+
+A code is read as the middle of its ADC step (the converter truncates): the current is
+``(code - zero_code + 0.5) * amps_per_code``, and zero at or below ``zero_code``.
 
 A writer that is killed loses only what it had not flushed (it flushes at least every
 ``flush_interval`` s from a background thread) and may leave a partial last record,
@@ -46,6 +51,7 @@ import numpy as np
 
 from ..errors import InputError, unreadable
 from .messages import Event, EventKind, Info, Samples
+from .protocol import NO_VALUE
 
 FORMAT_NAME = "coildrive-capture"
 FORMAT_VERSION = 1
@@ -382,7 +388,8 @@ class Capture:
     meta : :class:`CaptureMeta`.
     crc_errors, malformed_frames : frame errors the capture counted.
     restarts : times the sample index went backwards (the device restarted).
-    truncated_bytes : bytes of a partial last record dropped (a writer killed mid-write).
+    truncated_bytes : bytes of a partial last record dropped (a writer killed mid-write);
+        text mode: of a last line without its newline (not read: it may have been cut).
     source : where it came from (a path, or ``"memory"``).
     """
 
@@ -435,12 +442,12 @@ class Capture:
 
     @property
     def current(self) -> np.ndarray:
-        """Coil-sense current of each sample in A: ``(code - zero_code) * amps_per_code``."""
+        """Coil-sense current of each sample in A (:func:`code_current`)."""
         apc = self.meta.amps_per_code
         if apc is None:
             raise InputError(self.source, "amps_per_code",
                              "the capture does not say how many A one ADC code is; give a board (--board)")
-        return (self.code.astype(np.float64) - self.meta.zero_code) * apc
+        return code_current(self.code, self.meta.zero_code, apc)
 
     @property
     def samples_missing(self) -> int:
@@ -498,34 +505,57 @@ class Capture:
         return float(rate)
 
     def to_csv(self) -> str:
-        """CSV text: ``index,time_s,adc_code,current_a,event`` (one row per sample).
+        """CSV text: ``index,time_s,adc_code,current_a,event``, a row per sample and a
+        row per event index that has no sample (``docs/capture-format.md``, *CSV*).
 
-        ``current_a`` is empty when the scaling is unknown; ``event`` names the events
-        stamped at that sample (``on``, ``peak_end``, ``off``, ``switch=1``, ...), joined
-        with ``;``.
+        ``current_a`` is the code read mid-step (:func:`code_current`), empty when the
+        scaling is unknown; ``event`` holds the events stamped at that index in file
+        order, joined with ``;``: the name (``on``, ``peak_end``, ``off``) or, for kinds
+        that carry a value, ``name=value`` (``switch=1``, ``supply=2931``, ``kind-12=5``).
+        Rows without a sample (an event in a gap, in a pause or after the last sample)
+        have ``adc_code`` and ``current_a`` empty.
         """
-        n = self.code.size
-        labels = np.full(n, "", dtype=object)
-        if self.events and n:
-            pos = np.searchsorted(self.index, [e.index for e in self.events])
-            for e, k in zip(self.events, pos):
-                if k < n and self.index[k] == e.index:
-                    tag = e.name if e.kind not in (EventKind.SWITCH,) else f"{e.name}={e.value}"
-                    labels[k] = f"{labels[k]};{tag}" if labels[k] else tag
+        index = self.index
+        sampled = np.ones(index.size, bool)
+        event_index = np.array([e.index for e in self.events], np.int64)
+        alone = np.setdiff1d(event_index, index)
+        if alone.size:
+            at = np.searchsorted(index, alone)
+            index = np.insert(index, at, alone)
+            sampled = np.insert(sampled, at, False)
+        rows = index.size
+        labels = np.full(rows, "", dtype=object)
+        for e, k in zip(self.events, np.searchsorted(index, event_index)):
+            tag = e.name if e.kind in NO_VALUE else f"{e.name}={e.value}"
+            labels[k] = f"{labels[k]};{tag}" if labels[k] else tag
         buf = io.StringIO()
         buf.write("index,time_s,adc_code,current_a,event\n")
-        idx = self.index.astype(str)
-        time_s = np.char.mod("%.9g", self.time)
-        codes = self.code.astype(str)
-        if self.meta.amps_per_code is None:
-            amps = np.full(n, "", dtype=object)
-        else:
-            amps = np.char.mod("%.6g", self.current)
+        idx = index.astype(str)
+        time_s = np.char.mod("%.9g", index / self._rate())
+        codes = np.full(rows, "", dtype=object)
+        codes[sampled] = self.code.astype(str)
+        amps = np.full(rows, "", dtype=object)
+        if self.meta.amps_per_code is not None:
+            amps[sampled] = np.char.mod("%.6g", self.current)
         rows = [",".join(r) for r in zip(idx, time_s, codes, amps, labels)]
         buf.write("\n".join(rows))
         if rows:
             buf.write("\n")
         return buf.getvalue()
+
+
+def code_current(code: np.ndarray, zero_code: int, amps_per_code: float) -> np.ndarray:
+    """Current in A of current-sense ADC codes, each read as the middle of its step: a
+    truncating converter (the design's ADC convention) gives code ``k`` for inputs from
+    ``k`` to ``k + 1`` steps, so ``(code - zero_code + 0.5) * amps_per_code``; a code at
+    or below ``zero_code`` reads zero (``docs/capture-format.md``, the same reading as
+    :mod:`coildrive.bench.analysis`).
+
+    >>> code_current(np.array([0, 1, 10]), 0, 0.01).tolist()
+    [0.0, 0.015, 0.105]
+    """
+    c = np.asarray(code, np.float64) - zero_code
+    return np.where(c > 0, c + 0.5, 0.0) * amps_per_code
 
 
 def _unwrap(raw: np.ndarray) -> tuple[np.ndarray, int]:
@@ -692,7 +722,7 @@ def read_text_capture(data: bytes, source: str = "memory") -> Capture:
         d = d - _U32 if d >= _HALF else d
         events.append(CaptureEvent(int(index[k]) + d, kind, value))
     return Capture(index, code, tuple(events), (), CaptureMeta(**meta), 0,
-                   stats.malformed_frames, restarts, 0, source)
+                   stats.malformed_frames, restarts, stats.tail_bytes, source)
 
 
 def write_capture(path: str | os.PathLike, capture: Capture) -> None:
@@ -710,7 +740,7 @@ def write_capture(path: str | os.PathLike, capture: Capture) -> None:
         _append_runs(w, capture.index[start:], capture.code[start:])
         for g in capture.gaps:
             w.append_gap(g.index, g.frames)
-        w.append_errors(int(capture.index[-1]) if len(capture) else 0,
+        w.append_errors(int(capture.index[-1]) + 1 if len(capture) else 0,   # one past the last
                         capture.crc_errors, capture.malformed_frames)
 
 

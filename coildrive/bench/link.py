@@ -15,9 +15,9 @@ reads EOF) ends the thread, keeps everything written and sets :attr:`LinkStats.e
 
 :func:`replay` runs the same decoding on a file of raw link bytes (``--replay RAW``).
 
-Lost frames are written to the capture as gap records before the first sample that
-arrived after them; CRC and malformed frame counts as error records after the bytes
-that carried them (``docs/capture-format.md``).
+Lost frames are written to the capture as gap records, CRC and malformed frame counts as
+error records, each before the first sample that arrived after them and carrying its
+index (one past the last sample when none came after them; ``docs/capture-format.md``).
 
 Optionally the link stops by itself after ``stop_after_actuations`` complete actuations
 (an ON, then an OFF) and the rest of the last release: it ends at the first of the next
@@ -138,7 +138,8 @@ class _Pipeline:
 
     def __init__(self, writer: CaptureWriter | None, text: bool, sample_rate_hz: float | None,
                  stop_after: int | None, release_quiet_s: float, release_max_s: float,
-                 supply_volts_per_code: float | None = None, temperature_events: bool = False):
+                 supply_volts_per_code: float | None = None, temperature_events: bool = False,
+                 adc_bits: int | None = None):
         self.decoder: FrameDecoder | TextLineDecoder = TextLineDecoder() if text else FrameDecoder()
         self.writer = writer
         self.text = text
@@ -152,10 +153,7 @@ class _Pipeline:
         self._stop_after = stop_after
         self._quiet_s = release_quiet_s
         self._max_s = release_max_s
-        self._written = {"lost": 0, "crc": 0, "malformed": 0}
-        self._last_seq: int | None = None
-        self._seq_gap = 0             # frames missing before the next samples (local count)
-        self._budget = 0              # lost frames the decoder counted, not yet written
+        self._unwritten = [0, 0, 0]   # lost, CRC-failed, malformed frames counted, not yet written
         self._next_index = 0          # sample index after the last sample
         self._recent: collections.deque[np.ndarray] = collections.deque()
         self._recent_n = 0
@@ -165,6 +163,7 @@ class _Pipeline:
         self._tail_wall: float | None = None
         self._quiet_run = 0
         self._supply_vpc = supply_volts_per_code
+        self._supply_bits = adc_bits  # the resolution supply_volts_per_code is for
         self._temperature_events = temperature_events
         self._supply_codes: list[int] = []
         self._temperatures: list[int] = []
@@ -186,40 +185,41 @@ class _Pipeline:
         self.end()
 
     def end(self) -> None:
-        """Write lost frames counted after the last sample (no sample came after them)."""
-        if self._budget and self.writer is not None:
-            self.writer.append_gap(self._next_index, self._budget)
-        self._budget = 0
+        """Write what was counted after the last sample (no sample came after it)."""
+        self._write_counts(self._next_index)
 
     def _after_decode(self, messages: list[Message], deliver) -> None:
-        st = self.decoder.stats
-        self.dstats = st
-        self._budget += st.lost_frames - self._written["lost"]
-        self._written["lost"] = st.lost_frames
-        for message in messages:
+        self.dstats = self.decoder.stats
+        counted = self.decoder.counted()   # (position, what, count), in stream order
+        k = 0
+        for position, message in enumerate(messages):
+            while k < len(counted) and counted[k][0] <= position:
+                self._unwritten[counted[k][1]] += counted[k][2]
+                k += 1
             if not self._dispatch(message):
                 break                      # the stop point came before this message
             deliver(message)
             if self.done:
                 break                      # ... or with it: nothing after it is kept
+        for _, what, count in counted[k:]:     # after the last message: written with the
+            self._unwritten[what] += count      # next samples, or by end()
+
+    def _write_counts(self, index: int) -> None:
+        """Gap and error records for the frames counted since the last ones, at ``index``."""
+        lost, crc, bad = self._unwritten
         w = self.writer
-        crc = st.crc_errors - self._written["crc"]
-        bad = st.malformed_frames - self._written["malformed"]
-        if w is not None and (crc or bad):
-            w.append_errors(self._next_index, crc, bad)
-        self._written["crc"] = st.crc_errors
-        self._written["malformed"] = st.malformed_frames
+        if w is not None:
+            if lost:
+                w.append_gap(index, lost)
+            if crc or bad:
+                w.append_errors(index, crc, bad)
+        self._unwritten = [0, 0, 0]
 
     def _dispatch(self, m: Message) -> bool:
         """Write one message; ``False`` when the stop point came before it."""
         w = self.writer
         if isinstance(m, Samples):
-            self._seq_step(m.seq)
-            gap = min(self._seq_gap, self._budget)
-            if gap and w is not None:
-                w.append_gap(m.first_index, gap)
-            self._budget -= gap
-            self._seq_gap = 0
+            self._write_counts(m.first_index)
             if w is not None:
                 w.append_samples(m.first_index, m.codes)
             self.samples += len(m.codes)
@@ -229,7 +229,6 @@ class _Pipeline:
                 self._watch_release(m)
             return True
         if isinstance(m, Event):
-            self._seq_step(m.seq)
             if self._tail_from is not None and m.kind == EventKind.ON:
                 self.done = True           # the next actuation: not part of this capture
                 return False
@@ -251,12 +250,7 @@ class _Pipeline:
                 self.done = True           # idle from here: the release is over
             elif m.kind == EventKind.SUPPLY and self._supply_vpc:
                 self._supply_codes.append(m.value)
-                # the ADC truncates: a code is read as the middle of its step
-                volts = (float(np.median(self._supply_codes)) + 0.5) * self._supply_vpc
-                if volts != self.supply_v:
-                    self.supply_v = volts
-                    if w is not None:
-                        w.update_header(supply_v=volts)
+                self._update_supply()
             elif m.kind == EventKind.TEMPERATURE and self._temperature_events:
                 self._temperatures.append(m.value)
                 temp = float(np.median(self._temperatures)) / 1000.0
@@ -266,25 +260,28 @@ class _Pipeline:
                         w.update_header(coil_temp_c=temp)
             return True
         if isinstance(m, Info):
-            self._seq_step(m.seq)
             self.info = m
             self.sample_rate_hz = m.sample_rate_hz
             if w is not None:
                 w.append_message(m)
+            if self._supply_vpc and self._supply_bits and m.adc_bits != self._supply_bits:
+                # SUPPLY codes are at the resolution INFO states (docs/protocol.md 4.2)
+                self._supply_vpc *= 2.0 ** (self._supply_bits - m.adc_bits)
+                self._supply_bits = m.adc_bits
+                self._update_supply()
             return True
-        if isinstance(m, Reply):
-            self._seq_step(m.seq)
         return True                        # Reply, Command (a loop-back echo): not kept
 
-    def _seq_step(self, seq: int | None) -> None:
-        if seq is None:
+    def _update_supply(self) -> None:
+        """The header's ``supply_v``: the median SUPPLY code read as the middle of its
+        step (the ADC truncates), times the volts per code."""
+        if not self._supply_codes:
             return
-        last = self._last_seq
-        if last is not None:
-            step = (seq - last) & 0xFFFF
-            if 1 < step <= 0x8000:
-                self._seq_gap += step - 1
-        self._last_seq = seq
+        volts = (float(np.median(self._supply_codes)) + 0.5) * self._supply_vpc
+        if volts != self.supply_v:
+            self.supply_v = volts
+            if self.writer is not None:
+                self.writer.update_header(supply_v=volts)
 
     # ------------------------------------------------------------------ stopping
     def _remember(self, codes: np.ndarray) -> None:
@@ -378,8 +375,10 @@ class DeviceLink:
         rest of the last release (see the module docstring); ``None``: run until closed.
     read_timeout : s; release_quiet_s, release_max_s : s, see the module docstring.
     supply_volts_per_code : V of bus voltage per code of the device's SUPPLY events (the
-        board's ADC step times its supply divider); when given, the header's ``supply_v``
-        follows the median SUPPLY reading (a code read as the middle of its step).
+        board's ADC step times its supply divider) at the ``adc_bits`` of ``meta``; when
+        given, the header's ``supply_v`` follows the median SUPPLY reading (a code read as
+        the middle of its step). SUPPLY codes are at the resolution the device's INFO
+        states (``docs/protocol.md`` section 4.2): an INFO with other ``adc_bits`` rescales it.
     temperature_events : the header's ``coil_temp_c`` follows the median TEMPERATURE
         event (milli-degC), taken to be the coil's temperature.
 
@@ -421,7 +420,7 @@ class DeviceLink:
         self._writer = writer
         self._pipe = _Pipeline(writer, self.text, meta.get("sample_rate_hz"), stop_after_actuations,
                                release_quiet_s, release_max_s, supply_volts_per_code,
-                               temperature_events)
+                               temperature_events, meta.get("adc_bits"))
         self._lock = threading.Lock()          # pipeline, subscribers, stats
         self._write_lock = threading.Lock()    # the port's output
         self._replies = threading.Condition()
@@ -698,7 +697,7 @@ def replay(raw_path: str | os.PathLike, out: str | os.PathLike, *, text: bool = 
             with CaptureWriter(tmp, flush_interval=None, **meta) as writer:
                 pipe = _Pipeline(writer, text, meta.get("sample_rate_hz"), stop_after_actuations,
                                  RELEASE_QUIET_S, RELEASE_MAX_S, supply_volts_per_code,
-                                 temperature_events)
+                                 temperature_events, meta.get("adc_bits"))
                 while not pipe.done:
                     data = handle.read(chunk)
                     if not data:

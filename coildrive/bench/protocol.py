@@ -25,11 +25,11 @@ import math
 import struct
 from dataclasses import dataclass
 from enum import IntEnum
-from typing import Iterable
+from typing import Callable, Iterable
 
 import numpy as np
 
-from .framing import cobs_decode_or_none, cobs_encode, cobs_encoded_size
+from .framing import c_cobs_decoder, cobs_decode_or_none, cobs_encode, cobs_encoded_size
 from .messages import (Command, Event, EventKind, Info, Message, Opcode, Reply, ReplyStatus,
                        Samples)
 
@@ -37,7 +37,8 @@ __all__ = [
     "FrameType", "HEADER_SIZE", "CRC_SIZE", "MAX_PAYLOAD", "MAX_FRAME", "MAX_ENCODED",
     "MAX_SAMPLES_PER_FRAME", "MAX_FIRMWARE_ID", "PROTOCOL_VERSION", "SEQ_HALF_RANGE",
     "encode_frame", "encode_message", "frame_payload", "FrameEncoder", "FrameDecoder",
-    "DecoderStats", "Samples", "Event", "EventKind", "Info", "Command", "Opcode", "Reply",
+    "DecoderStats", "DecoderAccount", "NO_VALUE", "LOST", "CRC_FAILED", "MALFORMED",
+    "Samples", "Event", "EventKind", "Info", "Command", "Opcode", "Reply",
     "ReplyStatus", "Message",
 ]
 
@@ -80,6 +81,10 @@ INDEX_HALF_RANGE = 0x80000000
 
 FLAG_POSITION_SWITCH = 0x01
 """INFO flags bit 0: the board reads a position switch."""
+
+NO_VALUE = frozenset({EventKind.ON, EventKind.PEAK_END, EventKind.OFF})
+"""Event kinds whose value is unused (0 in a frame, absent from a text line and from the
+capture CSV's ``event`` column); every other kind carries one."""
 
 _EVENT = struct.Struct("<BIi")      # kind, index, value
 _INFO = struct.Struct("<BBBHIIf")   # version, flags, adc_bits, zero_code, rate num, rate den, A/code
@@ -232,8 +237,9 @@ class DecoderStats:
 
     Binary frames: every frame that arrives is delivered or counted in exactly one of
     ``crc_errors``, ``malformed_frames``, ``unknown_frames`` and ``duplicate_frames``.
-    ``lost_frames`` counts sequence numbers that never arrived intact (frames dropped on
-    the way *and* frames that arrived damaged: their numbers are not trusted).
+    ``lost_frames`` counts sequence numbers that never arrived in a frame that passed
+    every check (frames dropped on the way *and* frames that failed a check: a frame's
+    sequence number is trusted only once COBS, length, CRC and payload size are right).
 
     Text line mode: ``frames`` counts good lines, ``malformed_frames`` bad lines; the
     sequence counters stay 0 (lines carry no sequence number).
@@ -244,7 +250,8 @@ class DecoderStats:
     frames : frames (or lines) decoded into messages.
     crc_errors : frames whose CRC did not match.
     malformed_frames : not a frame: bad COBS, shorter than a header and CRC, longer than
-        :data:`MAX_ENCODED`, or a known type whose payload does not fit its layout.
+        :data:`MAX_FRAME` (or than :data:`MAX_ENCODED` on the wire), or a known type whose
+        payload does not fit its layout.
     unknown_frames : intact frames of a type this version does not know (skipped, their
         sequence numbers still counted).
     lost_frames : sequence numbers skipped, summed over all gaps.
@@ -259,6 +266,10 @@ class DecoderStats:
         (joining a stream part-way through a frame; not an error).
     samples_paused : sample indices the device said it skipped on purpose (PAUSE
         events: idle between recorded actuations; neither received nor missing).
+    tail_bytes : bytes after the last delimiter, at the end of the stream
+        (:meth:`FrameDecoder.finish`), that did not form a valid frame: the recording
+        stopped part-way through a frame (not an error). Text mode: a last line
+        without its newline (not read: it may have been cut).
     """
 
     bytes: int = 0
@@ -274,6 +285,7 @@ class DecoderStats:
     index_restarts: int = 0
     sync_bytes: int = 0
     samples_paused: int = 0
+    tail_bytes: int = 0
 
     @property
     def errors(self) -> int:
@@ -281,19 +293,37 @@ class DecoderStats:
         return self.crc_errors + self.malformed_frames + self.lost_frames
 
 
-class SampleIndexAccount:
-    """Sample-index accounting of a decoder, shared by :class:`FrameDecoder` and
-    :class:`~coildrive.bench.textline.TextLineDecoder`: the index expected next
-    (``None`` before the first sample), the samples missing (forward jumps), the index
-    restarts (backward jumps) and the samples paused (PAUSE events), by the rule of
-    :func:`index_gap`. A decoder calls :meth:`_index_jump` when samples do not start at
-    the index expected next, then sets ``_next_index`` past them."""
+LOST, CRC_FAILED, MALFORMED = 0, 1, 2
+"""What a :meth:`DecoderAccount.counted` entry counts."""
+
+
+class DecoderAccount:
+    """Accounting shared by :class:`FrameDecoder` and
+    :class:`~coildrive.bench.textline.TextLineDecoder`.
+
+    Sample indices: the index expected next (``None`` before the first sample), the
+    samples missing (forward jumps), the index restarts (backward jumps) and the samples
+    paused (PAUSE events), by the rule of :func:`index_gap`. A decoder calls
+    :meth:`_index_jump` when samples do not start at the index expected next, then sets
+    ``_next_index`` past them.
+
+    Where in the message stream frames were lost, failed their CRC or were malformed:
+    :meth:`counted` (the capture file places its gap and error records by it)."""
 
     def __init__(self) -> None:
         self._next_index: int | None = None
         self._samples_missing = 0
         self._index_restarts = 0
         self._samples_paused = 0
+        self._notes: list[tuple[int, int, int]] = []
+
+    def counted(self) -> list[tuple[int, int, int]]:
+        """What the last :meth:`feed` or :meth:`finish` call counted, and where:
+        ``(position, what, count)`` with ``what`` one of :data:`LOST`, :data:`CRC_FAILED`,
+        :data:`MALFORMED`, and ``position`` the number of messages that call returned
+        before it (the count belongs between message ``position - 1`` and message
+        ``position``; ``position == len(messages)``: after the last one)."""
+        return list(self._notes)
 
     def _index_jump(self, index: int) -> None:
         """The samples go on at ``index`` instead of at the index expected next."""
@@ -308,7 +338,11 @@ class SampleIndexAccount:
         self._samples_paused += value
 
 
-class FrameDecoder(SampleIndexAccount):
+_UNKNOWN = object()   # _parse: an intact frame of a type this version does not know
+_INSIDE, _START, _END = 0, 1, 2   # where a piece lies: between delimiters, before the first, at the end
+
+
+class FrameDecoder(DecoderAccount):
     """Streaming decoder of binary frames: ``feed(bytes) -> list of messages``.
 
     It never raises on its input. Bytes are cut at every ``0x00``; each piece is one
@@ -320,7 +354,16 @@ class FrameDecoder(SampleIndexAccount):
     Sequence rule, per direction: with ``step = (seq - previous) mod 65536``, a step of
     0 is a duplicate (dropped, counted), 1..32768 is forward with ``step - 1`` frames
     lost, 32769..65535 is backward: a restart of the sender, counted, no loss. The first
-    frame sets the reference. The same rule over 2**32 applies to sample indices.
+    frame sets the reference. Only a frame that passed every check (or an intact frame
+    of an unknown type) takes part. The same rule over 2**32 applies to sample indices.
+
+    Parameters
+    ----------
+    cobs_decode : ``bytes -> bytes | None`` (``None``: not valid COBS). Default: the
+        ``cobs`` package's C decoder (:func:`~coildrive.bench.framing.c_cobs_decoder`),
+        else our :func:`~coildrive.bench.framing.cobs_decode_or_none`, the reference the
+        tests compare it with (same result on every input; benchmarks/bench_decoder.py
+        measures both).
 
     Examples
     --------
@@ -332,8 +375,9 @@ class FrameDecoder(SampleIndexAccount):
     ([65535, 2], 1, 2)
     """
 
-    def __init__(self) -> None:
+    def __init__(self, cobs_decode: Callable[[bytes], bytes | bytearray | None] | None = None) -> None:
         super().__init__()
+        self._cobs = cobs_decode or c_cobs_decoder() or cobs_decode_or_none
         self._pending = b""
         self._discarding = False   # inside a piece that grew past MAX_ENCODED
         self._discarded = 0        # bytes of that piece so far
@@ -349,6 +393,7 @@ class FrameDecoder(SampleIndexAccount):
         self._restarts = 0
         self._samples = 0
         self._sync_bytes = 0
+        self._tail_bytes = 0
 
     @property
     def stats(self) -> DecoderStats:
@@ -356,7 +401,7 @@ class FrameDecoder(SampleIndexAccount):
         return DecoderStats(self._bytes, self._frames, self._crc_errors, self._malformed,
                             self._unknown, self._lost, self._duplicates, self._restarts,
                             self._samples, self._samples_missing, self._index_restarts,
-                            self._sync_bytes, self._samples_paused)
+                            self._sync_bytes, self._samples_paused, self._tail_bytes)
 
     @property
     def pending_bytes(self) -> int:
@@ -372,22 +417,24 @@ class FrameDecoder(SampleIndexAccount):
 
         Returns
         -------
-        the messages in the order their frames arrived.
+        the messages in the order their frames arrived (:meth:`counted` says where
+        frames were lost or damaged between them).
         """
         data = bytes(data)
         self._bytes += len(data)
+        self._notes = []
         out: list[Message] = []
         pieces = data.split(b"\x00")
         tail = pieces.pop()
         if pieces:
             first = pieces[0]
             if self._discarding:
-                self._end_discard(len(first))
+                self._end_discard(len(first), out)
             else:
                 if self._pending:
                     first = self._pending + first
                 if first:
-                    self._frame(first, out, startup=not self._synced)
+                    self._frame(first, out, _INSIDE if self._synced else _START)
             self._pending = b""
             self._synced = True
             frame = self._frame
@@ -408,48 +455,74 @@ class FrameDecoder(SampleIndexAccount):
         return out
 
     def finish(self) -> list[Message]:
-        """End of stream: decode a last frame whose delimiter never came.
+        """End of stream: the bytes after the last delimiter.
 
-        The end of the stream acts as a delimiter: the bytes held back are decoded as a
-        frame, or counted like any other damaged frame. The decoder can be fed again
-        afterwards (as after a delimiter).
+        A whole frame whose delimiter never came is decoded (a recorder stopped right
+        before the ``0x00``). Bytes that fail COBS, length or CRC are what the recording
+        cut off part-way through a frame: counted as ``tail_bytes``, not as an error
+        (like ``sync_bytes`` at the start). The decoder can be fed again afterwards (as
+        after a delimiter).
         """
+        self._notes = []
         out: list[Message] = []
         if self._discarding:
-            self._end_discard(0)
+            self._discarding = False
+            self._tail_bytes += self._discarded
+            self._discarded = 0
         elif self._pending:
-            self._frame(self._pending, out, startup=not self._synced)
+            self._frame(self._pending, out, _END if self._synced else _START)
         self._pending = b""
         self._synced = True
         return out
 
-    def _end_discard(self, more: int) -> None:
+    def _end_discard(self, more: int, out: list[Message]) -> None:
         """A piece longer than MAX_ENCODED has ended: one malformed frame (or sync bytes)."""
         self._discarding = False
         if self._synced:
-            self._malformed += 1
+            self._bad(MALFORMED, out, b"")
         else:
             self._sync_bytes += self._discarded + more
         self._discarded = 0
 
-    # The hot path: one call per frame.
-    def _frame(self, piece: bytes, out: list[Message], startup: bool = False) -> None:
-        raw = cobs_decode_or_none(piece) if len(piece) <= MAX_ENCODED else None
+    def _bad(self, what: int, out: list[Message], piece: bytes, where: int = _INSIDE) -> None:
+        """Count a piece that is no frame: a CRC failure or a malformed frame, or, at the
+        start or the end of the stream (COBS, length, CRC), sync or tail bytes."""
+        if where == _START:
+            self._sync_bytes += len(piece)
+        elif where == _END:
+            self._tail_bytes += len(piece)
+        elif what == CRC_FAILED:
+            self._crc_errors += 1
+            self._notes.append((len(out), CRC_FAILED, 1))
+        else:
+            self._malformed += 1
+            self._notes.append((len(out), MALFORMED, 1))
+
+    # The hot path: one call per frame. Checks in the order of docs/protocol.md section 6;
+    # the sequence number is read only from a frame that passed them all.
+    def _frame(self, piece: bytes, out: list[Message], where: int = _INSIDE) -> None:
+        raw = self._cobs(piece) if len(piece) <= MAX_ENCODED else None
         n = len(raw) if raw is not None else 0
-        if n < HEADER_SIZE + CRC_SIZE:
-            if startup:
-                self._sync_bytes += len(piece)
-            else:
-                self._malformed += 1
+        if not HEADER_SIZE + CRC_SIZE <= n <= MAX_FRAME:
+            self._bad(MALFORMED, out, piece, where)
             return
         if _crc(raw[:-2], 0xFFFF) != raw[-2] | raw[-1] << 8:
-            if startup:
-                self._sync_bytes += len(piece)
-            else:
-                self._crc_errors += 1
+            self._bad(CRC_FAILED, out, piece, where)
             return
         frame_type = raw[0]
         seq = raw[1] | raw[2] << 8
+        size = n - HEADER_SIZE - CRC_SIZE
+        message = None
+        if frame_type == 0x01:   # SAMPLES: built after the sequence check
+            count = (size - SAMPLES_HEADER) >> 1
+            if count < 1 or size & 1:
+                self._bad(MALFORMED, out, piece)
+                return
+        else:
+            message = _parse(frame_type, raw, size, seq)
+            if message is None:
+                self._bad(MALFORMED, out, piece)
+                return
         direction = frame_type >> 7
         last = self._last_seq[direction]
         if last is not None:
@@ -458,16 +531,13 @@ class FrameDecoder(SampleIndexAccount):
                 self._duplicates += 1
                 return
             if step <= SEQ_HALF_RANGE:
-                self._lost += step - 1
+                if step > 1:
+                    self._lost += step - 1
+                    self._notes.append((len(out), LOST, step - 1))
             else:
                 self._restarts += 1
         self._last_seq[direction] = seq
-        size = n - HEADER_SIZE - CRC_SIZE
-        if frame_type == 0x01:   # SAMPLES
-            count = (size - SAMPLES_HEADER) >> 1
-            if count < 1 or size & 1:
-                self._malformed += 1
-                return
+        if frame_type == 0x01:
             first = raw[3] | raw[4] << 8 | raw[5] << 16 | raw[6] << 24
             codes = np.frombuffer(raw, dtype="<u2", count=count, offset=HEADER_SIZE + SAMPLES_HEADER)
             codes.flags.writeable = False
@@ -478,41 +548,37 @@ class FrameDecoder(SampleIndexAccount):
             self._frames += 1
             out.append(Samples(first, codes, seq))
             return
-        message = self._other(frame_type, raw, size, seq)
-        if message is None:
+        if message is _UNKNOWN:
+            self._unknown += 1
             return
+        if type(message) is Event and message.kind == EventKind.PAUSE and message.value > 0:
+            self._pause(message.index, message.value)
         self._frames += 1
         out.append(message)
 
-    def _other(self, frame_type: int, raw: bytearray, size: int, seq: int) -> Message | None:
-        if frame_type == FrameType.EVENT:
-            if size != _EVENT.size:
-                self._malformed += 1
-                return None
-            kind, index, value = _EVENT.unpack_from(raw, HEADER_SIZE)
-            if kind == EventKind.PAUSE and value > 0:
-                self._pause(index, value)
-            # A kind of a later version is delivered as a plain int.
-            return Event(_known(EventKind, kind), index, value, seq)
-        if frame_type == FrameType.INFO:
-            info = _decode_info(raw, size, seq)
-            if info is None:
-                self._malformed += 1
-            return info
-        if frame_type == FrameType.COMMAND:
-            if size != _COMMAND.size:
-                self._malformed += 1
-                return None
-            opcode, argument = _COMMAND.unpack_from(raw, HEADER_SIZE)
-            return Command(_known(Opcode, opcode), argument, seq)
-        if frame_type == FrameType.REPLY:
-            if size != _REPLY.size:
-                self._malformed += 1
-                return None
-            command_seq, opcode, status, value = _REPLY.unpack_from(raw, HEADER_SIZE)
-            return Reply(command_seq, _known(Opcode, opcode), _known(ReplyStatus, status), value, seq)
-        self._unknown += 1
-        return None
+
+def _parse(frame_type: int, raw: bytes | bytearray, size: int, seq: int) -> Message | object | None:
+    """The message of an intact frame other than SAMPLES; ``None`` when its payload does
+    not fit its type (malformed), :data:`_UNKNOWN` for a type this version does not know."""
+    if frame_type == FrameType.EVENT:
+        if size != _EVENT.size:
+            return None
+        kind, index, value = _EVENT.unpack_from(raw, HEADER_SIZE)
+        # A kind of a later version is delivered as a plain int.
+        return Event(_known(EventKind, kind), index, value, seq)
+    if frame_type == FrameType.INFO:
+        return _decode_info(raw, size, seq)
+    if frame_type == FrameType.COMMAND:
+        if size != _COMMAND.size:
+            return None
+        opcode, argument = _COMMAND.unpack_from(raw, HEADER_SIZE)
+        return Command(_known(Opcode, opcode), argument, seq)
+    if frame_type == FrameType.REPLY:
+        if size != _REPLY.size:
+            return None
+        command_seq, opcode, status, value = _REPLY.unpack_from(raw, HEADER_SIZE)
+        return Reply(command_seq, _known(Opcode, opcode), _known(ReplyStatus, status), value, seq)
+    return _UNKNOWN
 
 
 def index_gap(next_index: int | None, index: int) -> tuple[int, int]:

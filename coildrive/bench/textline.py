@@ -10,12 +10,15 @@ by commas, integers in decimal, spaces around fields ignored::
     # anything                      a comment, ignored (so are empty lines)
 
 Event kind names are the :class:`~coildrive.bench.messages.EventKind` names in lower
-case (``on``, ``peak_end``, ``off``, ``switch``, ``overrun``, ``supply``,
-``temperature``, ``events_lost``, ``pause``; a ``pause,<index>,<value>`` line says
-the device sends no samples from ``index`` for ``value`` samples: they are not counted
-as missing). The sample rate may be an integer, a decimal
-(``1234.5``) or a ratio (``84000000/420``). A line longer than :data:`MAX_LINE` bytes or
-that fits none of these forms is counted as malformed and skipped.
+case. ``on``, ``peak_end`` and ``off`` take no value; ``switch``, ``overrun``,
+``supply``, ``temperature``, ``events_lost`` and ``pause`` take one (a
+``pause,<index>,<value>`` line says the device sends no samples from ``index`` for
+``value`` samples: they are not counted as missing). The sample rate may be an integer,
+a decimal (``1234.5``) or a ratio (``84000000/420``). A line longer than
+:data:`MAX_LINE` bytes or that fits none of these forms (a value missing, or a value on
+a kind that takes none, included) is counted as malformed and skipped. A last line
+without its newline at the end of the stream is not read (the recording may have cut
+it): its bytes are counted as ``tail_bytes``.
 
 >>> dec = TextLineDecoder()
 >>> msgs = dec.feed(b"10,512\\n11,520\\non,12\\n12,530\\nbad line\\n")
@@ -32,7 +35,7 @@ from fractions import Fraction
 import numpy as np
 
 from .messages import Event, EventKind, Info, Message, Samples
-from .protocol import MAX_FIRMWARE_ID, DecoderStats, SampleIndexAccount
+from .protocol import MALFORMED, MAX_FIRMWARE_ID, NO_VALUE, DecoderAccount, DecoderStats
 
 MAX_LINE = 256
 """Longest line accepted, bytes (newline not counted)."""
@@ -42,7 +45,7 @@ _KINDS = {kind.name.lower().encode(): kind for kind in EventKind}
 _U32_MAX = 0xFFFFFFFF
 
 
-class TextLineDecoder(SampleIndexAccount):
+class TextLineDecoder(DecoderAccount):
     """Streaming decoder of the text line mode: ``feed(bytes) -> list of messages``.
 
     Consecutive sample lines with consecutive indices become one
@@ -60,6 +63,8 @@ class TextLineDecoder(SampleIndexAccount):
         self._lines = 0
         self._malformed = 0
         self._samples = 0
+        self._tail_bytes = 0
+        self._discarded = 0          # bytes of that line so far
 
     @property
     def stats(self) -> DecoderStats:
@@ -68,59 +73,79 @@ class TextLineDecoder(SampleIndexAccount):
                             malformed_frames=self._malformed, samples=self._samples,
                             samples_missing=self._samples_missing,
                             index_restarts=self._index_restarts,
-                            samples_paused=self._samples_paused)
+                            samples_paused=self._samples_paused, tail_bytes=self._tail_bytes)
 
     def feed(self, data: bytes | bytearray | memoryview) -> list[Message]:
         """Decode the complete lines in ``data``; keep a partial last line for later."""
         data = bytes(data)
         self._bytes += len(data)
+        self._notes = []
         lines = data.split(b"\n")
         tail = lines.pop()
+        out: list[Message] = []
         if lines:
             if self._discarding:
                 self._discarding = False
-                self._malformed += 1
+                self._discarded = 0
+                self._malformed_line(out)
                 lines[0] = b"#"          # the rest of an over-long line: already counted
             elif self._pending:
                 lines[0] = self._pending + lines[0]
             self._pending = b""
-        out = self._lines_to_messages(lines)
+        self._lines_to_messages(lines, out)
         if self._discarding:
+            self._discarded += len(tail)
             return out
         if self._pending:
             tail = self._pending + tail
         if len(tail) > MAX_LINE:
             self._discarding = True
+            self._discarded = len(tail)
             self._pending = b""
         else:
             self._pending = tail
         return out
 
     def finish(self) -> list[Message]:
-        """End of stream: a last line without its newline is decoded as a line."""
-        if self._discarding:
-            self._discarding = False
-            self._malformed += 1
-            return []
-        line, self._pending = self._pending, b""
-        return self._lines_to_messages([line]) if line else []
+        """End of stream: a last line without its newline is not read (a recording cut
+        ``1234,2051`` to ``1234,20`` would read as a valid but wrong sample); its bytes
+        are counted as ``tail_bytes``. Returns no message (the list keeps the interface
+        of :meth:`FrameDecoder.finish`)."""
+        self._notes = []
+        self._tail_bytes += self._discarded if self._discarding else len(self._pending)
+        self._discarding = False
+        self._discarded = 0
+        self._pending = b""
+        return []
 
     # ------------------------------------------------------------------ internals
-    def _lines_to_messages(self, lines: list[bytes]) -> list[Message]:
-        out: list[Message] = []
+    def _malformed_line(self, out: list[Message]) -> None:
+        self._malformed += 1
+        self._notes.append((len(out), MALFORMED, 1))
+
+    def _lines_to_messages(self, lines: list[bytes], out: list[Message]) -> None:
         first = -1            # sample index of the open run
         codes: list[int] = []
         match = _SAMPLE.fullmatch
+
+        def malformed() -> None:
+            # a bad line ends the open run, so that the count sits where the line was
+            nonlocal codes
+            if codes:
+                out.append(self._samples_message(first, codes))
+                codes = []
+            self._malformed_line(out)
+
         for line in lines:
             if len(line) > MAX_LINE:
-                self._malformed += 1
+                malformed()
                 continue
             m = match(line)
             if m is not None:
                 index = int(m[1])
                 code = int(m[2])
                 if index > _U32_MAX or code > 0xFFFF:
-                    self._malformed += 1
+                    malformed()
                     continue
                 self._lines += 1
                 if codes and index == (first + len(codes)) & _U32_MAX:
@@ -136,7 +161,7 @@ class TextLineDecoder(SampleIndexAccount):
                 continue
             message = self._record(stripped)
             if message is None:
-                self._malformed += 1
+                malformed()
                 continue
             self._lines += 1
             if codes:
@@ -147,7 +172,6 @@ class TextLineDecoder(SampleIndexAccount):
                 self._pause(message.index, message.value)
         if codes:
             out.append(self._samples_message(first, codes))
-        return out
 
     def _samples_message(self, first: int, codes: list[int]) -> Samples:
         if first != self._next_index:
@@ -168,7 +192,7 @@ class TextLineDecoder(SampleIndexAccount):
         if kind is None:
             return None
         fields = rest.split(b",")
-        if not 1 <= len(fields) <= 2:
+        if len(fields) != (1 if kind in NO_VALUE else 2):
             return None
         index = _integer(fields[0], 0, _U32_MAX)
         value = _integer(fields[1], -2**31, 2**31 - 1) if len(fields) == 2 else 0
@@ -242,9 +266,13 @@ def format_text(message: Message) -> str:
         return "".join(f"{(first + k) & _U32_MAX},{int(code)}\n"
                        for k, code in enumerate(message.codes))
     if isinstance(message, Event):
-        name = EventKind(message.kind).name.lower()
-        return f"{name},{message.index}\n" if message.value == 0 else \
-            f"{name},{message.index},{message.value}\n"
+        kind = EventKind(message.kind)
+        name = kind.name.lower()
+        if kind not in NO_VALUE:
+            return f"{name},{message.index},{message.value}\n"
+        if message.value != 0:
+            raise ValueError(f"a text-mode {name} line carries no value, not {message.value}")
+        return f"{name},{message.index}\n"
     if isinstance(message, Info):
         rate = (str(message.rate_numerator) if message.rate_denominator == 1
                 else f"{message.rate_numerator}/{message.rate_denominator}")
