@@ -18,6 +18,9 @@ def test_readme_has_exactly_two_setup_commands():
     assert len(commands) == 2, commands
     assert commands[0].endswith("coildrive demo")
     assert "pytest" in commands[1]
+    # each makes a virtual environment of its own, so running one after the other works
+    venvs = [re.match(r"python3 -m venv (\S+) ", c).group(1) for c in commands]
+    assert venvs[0] != venvs[1], venvs
 
 
 def test_ci_runs_the_readme_test_command():

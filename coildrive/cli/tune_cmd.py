@@ -214,7 +214,8 @@ def _live(drive: Path, board: Optional[str], port: str, as_json: bool, header: O
         print_live(result, Console())
     if result.failure is not None:
         code, message = result.failure
-        status(f"coildrive tune: {message}")
+        if as_json:  # the table above already shows the failure; with --json stdout is data
+            status(f"coildrive tune: {message}")
         status(f"coildrive tune: {result.stop_detail}")
         raise typer.Exit(130 if code == "interrupted" else 1)
     if not result.stopped:

@@ -582,8 +582,10 @@ class LiveTuner:
                               "loses data (lower the sample rate or raise the baud rate)")
         if not act.judgement.seated:
             hint = ("" if self.drive.armature is not None else
-                    " (the drive file has no [armature] section: a coildrive emulate device built from it "
-                    "has no moving armature, so there is nothing to drop out)")
+                    ". The drive file has no [armature] section: if the device is coildrive emulate of "
+                    "this file, its coil has no moving armature, so there is no dip and nothing to drop "
+                    "out. Live tuning needs an armature that moves: a real coil on the bench, or an "
+                    "emulated drive with an [armature] section (e.g. examples/locker-latch-12v.toml)")
             raise LiveFailure("stuck", f"stuck armature: actuation {act.number} (duty {act.duty:.4f}) did not "
                               f"seat -- {act.judgement.evidence}; the device was stopped{hint}")
         return act
