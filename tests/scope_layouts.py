@@ -70,12 +70,10 @@ def scope_record(design, *, rate: float = 500e3, actuations: int = 2, hold_time:
                   _quantise(np.full(t.size, v) + rng.normal(0, 0.05, t.size), 2 * v), dt, on_times)
 
 
-def _idle_rows(rec: Record, width: int, at: float = 0.5) -> slice:
-    """Rows inside the idle time between the first two actuations (or before the first)."""
-    if len(rec.on_times) > 1:
-        mid = (rec.on_times[1] - 0.3 * (rec.on_times[1] - rec.on_times[0]) * 0 - 0.0015)
-    else:
-        mid = rec.on_times[0] * at
+def _idle_rows(rec: Record, width: int) -> slice:
+    """``width`` rows in the idle time 1.5 ms before the second switch-on (or half-way to
+    the first): where a glitch or a gap leaves every actuation whole."""
+    mid = rec.on_times[1] - 0.0015 if len(rec.on_times) > 1 else rec.on_times[0] / 2
     k = int(mid / rec.dt)
     return slice(k, k + width)
 
@@ -112,8 +110,8 @@ def write_preamble_units_row(rec: Record, path, probe_v_per_a: float = 0.1) -> N
 
 def write_index_increment(rec: Record, path) -> None:
     """Sample index in the first column, the increment stated beside the column names,
-    units ``Sequence``/``Volt`` (the current channel set to read amps... in volts at
-    1 V/A: --current-scale 1); glitches: empty and nan current cells."""
+    units ``Sequence``/``Volt`` (a probe of 1 V per A: ``--current-scale 1``) and a gate
+    channel; glitches: an empty and a ``nan`` current cell."""
     head = ["X,CH1,CH2,Start,Increment,",
             f"Sequence,Volt,Volt,{-rec.on_times[0]:.6e},{rec.dt:.6e},"]
     cur = [f"{x:.4e}" for x in rec.current]

@@ -386,6 +386,8 @@ def check_capture(capture: Capture, design, tolerances: Tolerances | None = None
                          f"{'ended' if x.partial == 'end' else 'began'} during actuation {x.number} "
                          "(nothing to check; capture at least one whole actuation, from idle to idle)")
     numbers = [x.number for x in acts]
+    notes.extend(f"actuation {x.number} is incomplete: the capture {'ended' if x.partial == 'end' else 'began'} "
+                 "during it; it is reported but left out of the check" for x in cut_short)
     holds = [x.hold_duration_s for x in acts if x.hold_duration_s]
     hold_time = float(np.median(holds)) if holds else max(2 * design.pull_in.peak_time_s, 20 / f_hold)
     pred, w = predict(design, point, hold_time)

@@ -31,9 +31,14 @@ def _band_colour(item) -> str:
 
 
 def plot_check(report: CheckReport, capture: Capture, max_actuations: int = 5) -> bytes:
-    """PNG bytes: every actuation (up to ``max_actuations``) aligned at its switch-on,
-    over the model waveform at the check's operating point, with the pull-in window, the
-    hold-mean band and the release window; failed figures in the title."""
+    """PNG bytes of :func:`check_figure`."""
+    return png_bytes(check_figure(report, capture, max_actuations))
+
+
+def check_figure(report: CheckReport, capture: Capture, max_actuations: int = 5):
+    """The matplotlib figure: every actuation (up to ``max_actuations``) aligned at its
+    switch-on, over the model waveform at the check's operating point, with the pull-in
+    window, the hold-mean band and the release window; failed figures in the title."""
     fig = agg_figure(figsize=(10, 5.5), dpi=110)
     ax = fig.add_subplot(1, 1, 1)
     w = report.waveform
@@ -104,4 +109,4 @@ def plot_check(report: CheckReport, capture: Capture, max_actuations: int = 5) -
     ax.set_ylabel("coil current (sense) [A]")
     ax.grid(alpha=0.3)
     ax.legend(fontsize=7, loc="upper right")
-    return png_bytes(fig)
+    return fig

@@ -320,9 +320,8 @@ def _table(text: str, source: str) -> _Table:
     cols = [j for j in range(width)
             if sum(1 for r in tail if j < len(r) and _is_number(r[j])) >= 0.8 * len(tail)]
     if not cols:
-        line = numbers[content[-1]]
-        raise InputError(source, f"line {line}", "holds no numbers: not a CSV of scope samples "
-                         "(time and current columns)")
+        raise InputError(source, "", "is not a capture: no column of numbers (expected a coildrive "
+                         "capture file, text-mode index,adc lines, or a scope CSV of time and current)")
     start = next((k for k in content if all(j < len(rows[k]) and _is_number(rows[k][j]) for j in cols)),
                  content[-1])
     header = [k for k in content if k < start]
@@ -435,7 +434,7 @@ def _column(table: _Table, j: int, source: str, what: str, missing_ok: bool) -> 
         if bad.size:
             k = int(bad[0])
             raise InputError(source, f"line {table.lines[table.data_start + k]}, column {j + 1}",
-                             f"{cells[k]!r}: no {what} on this row")
+                             f"{cells[k]!r} holds no value ({what} expected on every row)")
     return values
 
 
@@ -486,7 +485,11 @@ def _grid(t: np.ndarray, lines: list[int], source: str) -> tuple[np.ndarray, flo
 def _switch_events(state_v: np.ndarray, index: np.ndarray, fs: float) -> tuple[list[CaptureEvent], list[str]]:
     """ON, PEAK_END, OFF events from a switch/gate column (high = on), with hysteresis
     between 30 % and 70 % of its low and high levels; actuations are separated by an off
-    time longer than the larger of ``MIN_IDLE_S`` and three times the median off-time."""
+    time longer than the larger of ``MIN_IDLE_S`` and three times the median off-time.
+    ON at the first sample of a rise, OFF at the first sample of the last fall (when the
+    record shows the idle after it), PEAK_END one usual hold on-time (the median of the
+    hold's pulses) before the first fall: a hold starts with an on-time, which the gate
+    cannot tell from the peak."""
     notes: list[str] = []
     v = state_v
     ok = np.isfinite(v)
@@ -519,7 +522,12 @@ def _switch_events(state_v: np.ndarray, index: np.ndarray, fs: float) -> tuple[l
         events.append(CaptureEvent(int(index[on]), int(EventKind.ON)))
         inside = falls[(falls > on) & ((falls < nxt) if nxt is not None else True)]
         if inside.size:
-            events.append(CaptureEvent(int(index[inside[0]]), int(EventKind.PEAK_END)))
+            # the hold starts with a PWM on-time that the gate cannot tell from the peak:
+            # the hold starts one usual hold on-time before the first switch-off
+            pulses = rises[(rises > inside[0]) & (rises < inside[-1])]
+            ends = falls[np.searchsorted(falls, pulses)] if pulses.size else pulses
+            on_time = float(np.median(index[ends] - index[pulses])) if pulses.size >= 3 else 0.0
+            events.append(CaptureEvent(int(round(index[inside[0]] - on_time)), int(EventKind.PEAK_END)))
         ended = nxt is not None or (not state[-1] and inside.size
                                     and index[-1] - index[inside[-1]] > gap)
         if inside.size and ended:
@@ -574,8 +582,8 @@ def read_scope_csv(path: str | os.PathLike, options: ScopeOptions | None = None)
         name, unit = table.names.get(j, ("", None))
         kind, scale = _unit_kind(unit)
         if kind is None:
-            hunit = table.keys.get(next((k for k in table.keys if k in _HUNIT_KEYS), ""), None)
-            kind, scale = _unit_kind(hunit)
+            unit = table.keys.get(next((k for k in table.keys if k in _HUNIT_KEYS), ""), None)
+            kind, scale = _unit_kind(unit)
         t = _column(table, j, source, "a time", missing_ok=False)
         integers = bool(np.all(t == np.round(t))) and bool(np.all(np.diff(t) >= 1))
         if kind == "index" or (kind is None and (name.strip().lower() in _INDEX_NAMES or
@@ -604,16 +612,16 @@ def read_scope_csv(path: str | os.PathLike, options: ScopeOptions | None = None)
     cname, cunit = table.names.get(jc, ("", None))
     ckind, cscale = _unit_kind(cunit)
     if ckind is None:
-        vunit = table.keys.get(next((k for k in table.keys if k in _VUNIT_KEYS), ""), None)
-        ckind, cscale = _unit_kind(vunit)
+        cunit = table.keys.get(next((k for k in table.keys if k in _VUNIT_KEYS), ""), None)
+        ckind, cscale = _unit_kind(cunit)
     amps = _column(table, jc, source, "a current", missing_ok=True)
     label = f"column {jc + 1}" + (f" ({cname})" if cname else "")
     if options.current_scale is not None:
-        if ckind == "current":
-            raise InputError("--current-scale", "", f"the current column {cname or jc + 1} is already in {cunit}: "
-                             "no probe scale needed")
+        # volts of a probe times A per V; on a column already in A a plain factor (-1 flips
+        # a probe clamped the other way round)
         amps = amps * cscale * options.current_scale
-        scale_note = f"x {options.current_scale:.6g} A/V"
+        scale_note = (f"in {cunit} x {options.current_scale:.6g}" if ckind == "current"
+                      else f"x {options.current_scale:.6g} A/V")
     elif ckind == "voltage":
         raise InputError(source, label, f"is in {cunit}: a current probe's output; give --current-scale "
                          "(the probe's A per V, e.g. \"10 A/V\" or \"100 mV/A\")")
