@@ -404,7 +404,8 @@ def check_capture(capture: Capture, design, tolerances: Tolerances | None = None
                            + left_out, actuations=tuple(numbers)))
     missing = sum(x.samples_missing for x in acts)
     link_detail = (f"{missing} missing in actuations; {capture.lost_frames} frames lost, "
-                   f"{capture.crc_errors} CRC errors")
+                   f"{capture.crc_errors} CRC errors") if meta.link != "scope" else (
+        f"{missing} missing in actuations (gaps in the scope record)")
     items.append(CheckItem("link", FAIL if missing else PASS, float(missing), 0.0, 0.0, 0.0, "samples",
                            link_detail))
     if n:
