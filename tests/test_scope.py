@@ -184,6 +184,8 @@ def _ok_rows(n=40, dt=1e-5):
     (lambda r: r.__setitem__(20, "1.000000e-04,0.5"), [], "line 22: time 0.0001 s goes back"),
     (lambda r: r.__setitem__(20, "1.900000e-04,0.7"), [], "line 22: repeats the time 0.00019 s of line 21 with other values"),
     (lambda r: r.__setitem__(20, ",0.5"), [], "line 22, column 1: '' holds no value (a time expected"),
+    (lambda r: r.__setitem__(39, "5.000000e+03,0.0"), [], "line 41: time jumps from 0.00038 s to 5000 s, a gap longer than the whole record"),
+    (lambda r: r.__setitem__(20, "2.000000e-04"), [], "line 22: has 1 column(s), the data needs 2"),
     (lambda r: None, ["--columns", "time=1,current=7"], "current=7: column 7 holds no data"),
     (lambda r: None, ["--columns", "time=1,curent=2"], "'curent' is not a role"),
     (lambda r: None, ["--sample-interval", "-1 us"], "--sample-interval"),
@@ -198,6 +200,15 @@ def test_reader_errors_name_file_line_and_column(tmp_path, mutate, options, mess
     assert len(r.stderr.strip().splitlines()) == 1 and message in r.stderr, r.stderr
     if "line" in message:
         assert str(path) in r.stderr
+
+
+def test_blank_lines_and_a_cut_last_line_are_read(tmp_path):
+    rows = _ok_rows()
+    path = tmp_path / "tail.csv"
+    path.write_text(_table(rows[:20] + [""] + rows[20:]) + "\n\n" + "4.0000")
+    cap = read_scope_csv(path)
+    assert len(cap) == 40 and cap.samples_missing == 0, "a blank line is not a sample"
+    assert any("line 45 is cut short" in n for n in cap.meta.extra["notes"])
 
 
 def test_probe_volts_need_a_scale_and_reversed_probes_are_caught(tmp_path):

@@ -45,6 +45,7 @@ the line and the column.
 from __future__ import annotations
 
 import csv
+import gc
 import math
 import os
 import re
@@ -68,8 +69,10 @@ OVERRANGE = 1e30
 GRID_TOLERANCE = 0.25
 #: Gap without current that separates actuations in a switch-state column (s, at least).
 MIN_IDLE_S = 1e-3
-#: Largest file read, bytes (about 20 million rows of a few columns).
-MAX_BYTES = 1 << 30
+#: Largest file read, bytes (a few million rows: every field is held in memory while read).
+MAX_BYTES = 128 << 20
+#: Data rows searched for settings written beside the data.
+KEY_ROWS = 100
 
 _MISSING = {"", "nan", "-nan", "+nan", "inf", "-inf", "+inf", "-", "--", "---", "null", "none"}
 _TIME_UNITS = {"s": 1.0, "ms": 1e-3, "us": 1e-6, "\u00b5s": 1e-6, "\u03bcs": 1e-6, "ns": 1e-9,
@@ -85,12 +88,14 @@ _INTERVAL_KEYS = {"sampleinterval", "samplinginterval", "sampleperiod", "samplin
 _RATE_KEYS = {"samplerate", "samplingrate", "samplefrequency", "samplingfrequency"}
 _VUNIT_KEYS = {"verticalunits", "verticalunit", "yunits", "yunit"}
 _HUNIT_KEYS = {"horizontalunits", "horizontalunit", "xunits", "xunit"}
+# matched in this order, a column to one role only ("switch_voltage" is the node, not
+# the switch state)
 _ROLE_WORDS = {
     "time": ("time", "zeit", "temps"),
     "current": ("current", "curr", "amps", "ibus", "icoil", "i_coil", "coil_i"),
-    "switch": ("switch_on", "gate", "state", "switch", "drive", "pwm"),
     "node": ("node", "drain", "vds", "switch_voltage", "vsw", "sw_node"),
     "supply": ("supply", "vbus", "bus", "vin", "vbat", "battery"),
+    "switch": ("switch_on", "gate", "state", "switch", "drive", "pwm"),
 }
 
 
@@ -304,14 +309,12 @@ def _table(text: str, source: str) -> _Table:
     numbers: list[int] = []
     reader = csv.reader(lines, delimiter=delim)
     try:
-        for k, row in enumerate(reader):
-            if decimal_comma:
-                row = [c.replace(",", ".") for c in row]
-            rows.append(row)
-            numbers.append(k + 1)
+        for row in reader:
+            rows.append([c.replace(",", ".") for c in row] if decimal_comma else row)
+            numbers.append(reader.line_num)
     except csv.Error as err:
         raise InputError(source, f"line {reader.line_num}", f"cannot be split into columns ({err})") from None
-    content = [k for k, r in enumerate(rows) if any(c.strip() for c in r)]
+    content = [k for k, r in enumerate(rows) if any(r)]
     if not content:
         raise InputError(source, "", "is empty: no scope samples")
     # data positions: numeric in most of the last content rows
@@ -346,7 +349,8 @@ def _table(text: str, source: str) -> _Table:
                 unit = units_row[j].strip()
             names[j] = (name, unit)
     keys: dict = {}
-    for k in content:
+    # settings sit above the data or beside its first rows
+    for k in [k for k in content if k < start] + [k for k in content if k >= start][:KEY_ROWS]:
         r = rows[k]
         for j, cell in enumerate(r):
             if j in cols and k >= start:
@@ -375,8 +379,10 @@ def _pick(table: _Table, options: ScopeOptions, source: str) -> dict:
         for j in cols:
             name, unit = table.names.get(j, ("", None))
             low = name.lower()
+            if j in out.values() or role in out:
+                continue
             if any(low == w or low.startswith(w) or w in low.split() or w in low.split("_") for w in words):
-                out.setdefault(role, j)
+                out[role] = j
     if "time" not in out:
         first = table.names.get(cols[0], ("", None))
         kind = _unit_kind(first[1])[0]
@@ -416,18 +422,22 @@ def _column(table: _Table, j: int, source: str, what: str, missing_ok: bool) -> 
     """Floats of data column ``j`` (nan where a cell holds no value); an unreadable cell
     is an error naming its line and column."""
     rows = table.rows[table.data_start:]
-    cells = [r[j].strip() if j < len(r) else "" for r in rows]
-    clean = ["nan" if c.lower() in _MISSING else c for c in cells]
+    cells = [r[j] if j < len(r) else "" for r in rows]
     try:
-        values = np.asarray(clean, dtype=np.float64)
+        values = np.asarray(cells, dtype=np.float64)     # the usual case: every cell a number
     except ValueError:
-        for k, c in enumerate(clean):
-            if not _is_number(c) and c != "nan":
-                name = table.names.get(j, (None, None))[0]
-                col = f"column {j + 1}" + (f" ({name})" if name else "")
-                raise InputError(source, f"line {table.lines[table.data_start + k]}, {col}",
-                                 f"{cells[k]!r} is not a number ({what} expected)") from None
-        raise  # pragma: no cover - numpy refused a cell the pattern accepts
+        cells = [c.strip() for c in cells]
+        clean = ["nan" if c.lower() in _MISSING else c for c in cells]
+        try:
+            values = np.asarray(clean, dtype=np.float64)
+        except ValueError:
+            values = None
+    if values is None:
+        name = table.names.get(j, (None, None))[0]
+        col = f"column {j + 1}" + (f" ({name})" if name else "")
+        k = next((k for k, c in enumerate(clean) if not _is_number(c) and c != "nan"), 0)
+        raise InputError(source, f"line {table.lines[table.data_start + k]}, {col}",
+                         f"{cells[k]!r} is not a number ({what} expected)")
     values[np.abs(values) >= OVERRANGE] = np.nan
     if not missing_ok:
         bad = np.flatnonzero(~np.isfinite(values))
@@ -479,6 +489,11 @@ def _grid(t: np.ndarray, lines: list[int], source: str) -> tuple[np.ndarray, flo
         j = int(back[0]) + 1
         raise InputError(source, f"line {lines[j]}", f"time {t[j]:.9g} s goes back from {t[j - 1]:.9g} s: "
                          "two records in one file? Export one record per file")
+    jump = np.flatnonzero(np.diff(k) > k.size)
+    if jump.size:
+        j = int(jump[0]) + 1
+        raise InputError(source, f"line {lines[j]}", f"time jumps from {t[j - 1]:.9g} s to {t[j]:.9g} s, a gap "
+                         f"longer than the whole record ({k.size} rows): not one record")
     return k, dt
 
 
@@ -538,6 +553,18 @@ def _switch_events(state_v: np.ndarray, index: np.ndarray, fs: float) -> tuple[l
 def read_scope_csv(path: str | os.PathLike, options: ScopeOptions | None = None) -> Capture:
     """Read a scope CSV (see the module docstring) into a :class:`Capture` (``link`` =
     ``"scope"``, sense position ``"coil"``: the probe reads the coil current always)."""
+    # a row is a list of strings: millions of small containers that the cyclic garbage
+    # collector would scan again and again (they hold no cycles); it halves the time
+    enabled = gc.isenabled()
+    gc.disable()
+    try:
+        return _read_scope_csv(path, options)
+    finally:
+        if enabled:
+            gc.enable()
+
+
+def _read_scope_csv(path: str | os.PathLike, options: ScopeOptions | None) -> Capture:
     options = options or ScopeOptions()
     source = str(path)
     try:
@@ -551,25 +578,18 @@ def read_scope_csv(path: str | os.PathLike, options: ScopeOptions | None = None)
     table = _table(_decode(raw, source), source)
     roles = _pick(table, options, source)
     notes: list[str] = []
-    lines = table.lines[table.data_start:]
-    # rows cut off at the end of the file (a short last line) are dropped
+    # blank rows are skipped; a short last row (the export was cut off) is dropped
     need = max(roles.values()) + 1
-    rows = table.rows[table.data_start:]
-    while rows and len(rows[-1]) < need and len(rows) > 1:
-        notes.append(f"line {lines[len(rows) - 1]} is cut short: left out")
-        rows.pop()
-    for k, r in enumerate(rows):
-        if len(r) < need and any(c.strip() for c in r):
-            raise InputError(source, f"line {lines[k]}", f"has {len(r)} column(s), the data needs {need}")
-    keep_rows = [k for k, r in enumerate(rows) if any(c.strip() for c in r)]
-    if len(keep_rows) != len(rows):
-        table.rows[table.data_start:] = [rows[k] for k in keep_rows]
-        del table.rows[table.data_start + len(keep_rows):]
-        table.lines[table.data_start:] = [lines[k] for k in keep_rows]
-        del table.lines[table.data_start + len(keep_rows):]
-    else:
-        del table.rows[table.data_start + len(rows):]
-        del table.lines[table.data_start + len(rows):]
+    data = [(ln, r) for ln, r in zip(table.lines[table.data_start:], table.rows[table.data_start:])
+            if any(r)]
+    if data and len(data[-1][1]) < need:
+        notes.append(f"line {data[-1][0]} is cut short: left out")
+        data.pop()
+    for ln, r in data:
+        if len(r) < need:
+            raise InputError(source, f"line {ln}", f"has {len(r)} column(s), the data needs {need}")
+    table.lines[table.data_start:] = [ln for ln, _ in data]
+    table.rows[table.data_start:] = [r for _, r in data]
     lines = table.lines[table.data_start:]
     n_rows = len(lines)
     if n_rows < 16:
@@ -702,12 +722,5 @@ def read_scope_csv(path: str | os.PathLike, options: ScopeOptions | None = None)
     return Capture(index.astype(np.int64), code, tuple(events), (), CaptureMeta(**meta), source=source)
 
 
-def scope_notes(capture: Capture) -> list[str]:
-    """The reader's notes about a scope capture (none for other captures)."""
-    if capture.meta.link != "scope":
-        return []
-    return list(capture.meta.extra.get("notes", []))
-
-
 __all__ = ["ROLES", "ScopeOptions", "parse_columns", "parse_current_scale", "looks_like_scope_csv",
-           "read_any_capture", "read_scope_csv", "scope_notes"]
+           "read_any_capture", "read_scope_csv"]
