@@ -86,7 +86,7 @@ def test_a_capture_stopped_anywhere_in_an_actuation_passes_a_good_device(capture
             # the third was cut short: reported, and not part of any row (cut a sample
             # after its switch-on, the waveform shows no actuation yet: then there are 2)
             assert acts[-1]["partial"] == "end" and not acts[-1]["complete"], path.name
-            assert "actuation 3 left out: the capture ended during it" in rows["actuations"]["detail"]
+            assert "left out: the capture ended during actuation 3" in rows["actuations"]["detail"]
             assert all(3 not in i["actuations"] for i in doc["items"] if i["actuations"])
 
 
@@ -119,7 +119,7 @@ def test_a_capture_that_starts_mid_actuation_passes(captures, tmp_path):
     assert r.exit_code == 0, r.output
     doc = json.loads(r.stdout)
     assert doc["analysis"]["actuations"][0]["partial"] == "start"
-    assert "the capture began during it" in doc["items"][0]["detail"]
+    assert "left out: the capture began during actuation 1" in doc["items"][0]["detail"]
 
 
 def test_scope_records_ending_mid_actuation_pass(tmp_path):
@@ -140,5 +140,5 @@ def test_cli_subprocess_reports_the_cut_actuation(captures):
     r = run_cli("check", str(paths[len(paths) // 2]), _drive("demo-valve"))
     assert r.returncode == 0, r.stdout + r.stderr
     text = " ".join(r.stdout.split())      # the table and notes wrap at the terminal's width
-    assert "actuation 3 is incomplete: the capture ended during it; it is reported but left out" in text
+    assert "the capture ended during actuation 3: it is reported but left out of the check" in text
     assert "check passed" in r.stdout

@@ -132,6 +132,13 @@ class ActuationResult:
     partial: str | None = None
     notes: tuple[str, ...] = ()
 
+    def partial_text(self) -> str:
+        """How the capture cut this actuation short, e.g. ``"the capture ended during
+        actuation 3"`` (empty when it did not)."""
+        if self.partial is None:
+            return ""
+        return f"the capture {'ended' if self.partial == 'end' else 'began'} during actuation {self.number}"
+
     def to_dict(self) -> dict:
         """Plain JSON-ready dict (non-finite floats as ``None``)."""
         out = asdict(self)

@@ -381,13 +381,10 @@ def check_capture(capture: Capture, design, tolerances: Tolerances | None = None
     cut_short = [x for x in a.actuations if x.partial is not None]
     acts = [x for x in a.actuations if x.partial is None]
     if cut_short and not acts:
-        x = cut_short[-1]
-        raise InputError(capture.source, "", "holds no complete actuation: the capture "
-                         f"{'ended' if x.partial == 'end' else 'began'} during actuation {x.number} "
+        raise InputError(capture.source, "", f"holds no complete actuation: {cut_short[-1].partial_text()} "
                          "(nothing to check; capture at least one whole actuation, from idle to idle)")
     numbers = [x.number for x in acts]
-    notes.extend(f"actuation {x.number} is incomplete: the capture {'ended' if x.partial == 'end' else 'began'} "
-                 "during it; it is reported but left out of the check" for x in cut_short)
+    notes.extend(f"{x.partial_text()}: it is reported but left out of the check" for x in cut_short)
     holds = [x.hold_duration_s for x in acts if x.hold_duration_s]
     hold_time = float(np.median(holds)) if holds else max(2 * design.pull_in.peak_time_s, 20 / f_hold)
     pred, w = predict(design, point, hold_time)
@@ -396,8 +393,7 @@ def check_capture(capture: Capture, design, tolerances: Tolerances | None = None
     items: list[CheckItem] = []
 
     n = len(acts)
-    left_out = "".join(f"; actuation {x.number} left out: the capture "
-                       f"{'ended' if x.partial == 'end' else 'began'} during it" for x in cut_short)
+    left_out = "".join(f"; left out: {x.partial_text()}" for x in cut_short)
     items.append(CheckItem("actuations", PASS if n else FAIL, float(n), None, None, None, "",
                            f"{n} found" + (f" from {acts[0].phases_from}" if n else
                                            ": no current rose (open coil?) or no actuation captured")

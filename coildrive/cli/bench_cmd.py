@@ -118,7 +118,7 @@ def check_command(
     tol_hold_mean: Optional[str] = typer.Option(None, "--tol-hold-mean", help="Tolerance on the hold mean current (default 0.10)."),
     tol_ripple: Optional[str] = typer.Option(None, "--tol-ripple", help="Tolerance on the hold ripple (default 0.30)."),
     tol_release: Optional[str] = typer.Option(None, "--tol-release", help="Tolerance on the release time (default 0.20)."),
-    no_events: bool = typer.Option(False, "--no-events", help="Find the phases from the waveform even when the capture has events (or a scope CSV a switch column)."),
+    no_events: bool = typer.Option(False, "--no-events", help="Find the phases from the waveform even when the capture has events (or, in a scope CSV, a switch column)."),
     columns: Optional[str] = typer.Option(None, "--columns", help=_COLUMNS_HELP),
     current_scale: Optional[str] = typer.Option(None, "--current-scale", help=_SCALE_HELP),
     sample_interval: Optional[str] = typer.Option(None, "--sample-interval", help=_INTERVAL_HELP),
