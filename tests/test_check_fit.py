@@ -209,3 +209,53 @@ def test_cli_fit_prints_a_coil_section(captures, demo):
     doc = json.loads(js.stdout)
     assert doc["inductance_h"] == pytest.approx(0.060, rel=0.03) and not doc["coil_temp_known"]
     assert "[coil]" in doc["coil_section"]
+
+
+# ----------------------------------------------------------------------------- limits shown
+def test_each_row_says_its_distance_to_the_band_edge(demo):
+    """margin_pct = distance of the worst value to the nearer band edge, in % of the band's
+    width: 50 on the prediction, 0 on an edge, below 0 outside (so its sign is the verdict)."""
+    cap = synth_design_capture(demo, actuations=3, hold_time=0.05, noise_codes=1.0, seed=11)
+    for report in (check_capture(cap, demo),
+                   check_capture(synth_design_capture(demo, actuations=2, hold_time=0.05, seed=3,
+                                                      resistance_scale=1.4), demo)):
+        doc = report.to_dict()
+        banded = [i for i in doc["items"] if i["low"] is not None and i["high"] > i["low"]
+                  and i["measured"] is not None]
+        assert {"pull_in_time", "hold_mean", "release_time"} <= {i["name"] for i in banded}
+        for i in banded:
+            lo, hi, v = i["low"], i["high"], i["measured"]
+            expect = 100.0 * min(v - lo, hi - v) / (hi - lo)
+            assert i["margin_pct"] == pytest.approx(expect, abs=1e-4), i["name"]
+            assert (i["margin_pct"] >= 0) == (i["status"] == PASS), i
+            assert i["margin_pct"] == min(m for m in i["margins_pct"] if m is not None), \
+                "the worst actuation is the one nearest an edge"
+
+
+def test_plot_draws_the_acceptance_bands(demo):
+    from coildrive.bench.plot import check_figure
+
+    cap = synth_design_capture(demo, actuations=2, hold_time=0.05, noise_codes=1.0, seed=11)
+    report = check_capture(cap, demo)
+    fig = check_figure(report, cap)
+    ax = fig.axes[0]
+    labels = [t.get_text() for t in ax.get_legend().get_texts()]
+    rows = {i.name: i for i in report.items}
+    assert any(x.startswith("pull-in window") for x in labels)
+    assert any(x.startswith("hold-mean band") for x in labels)
+    assert any(x.startswith("release window") for x in labels)
+    spans = {p.get_label().split(":")[0]: p for p in ax.patches + ax.collections if p.get_label()}
+
+    def x_extent(patch):        # axvspan: a Rectangle (newer matplotlib) or a Polygon
+        if hasattr(patch, "get_width"):
+            return patch.get_x(), patch.get_x() + patch.get_width()
+        xs = [x for x, _ in patch.get_xy()]
+        return min(xs), max(xs)
+
+    assert x_extent(spans["pull-in window"]) == pytest.approx(
+        (rows["pull_in_time"].low * 1e3, rows["pull_in_time"].high * 1e3))
+    ys = spans["hold-mean band"].get_paths()[0].vertices[:, 1]
+    assert (ys.min(), ys.max()) == pytest.approx((rows["hold_mean"].low, rows["hold_mean"].high))
+    off = report.waveform.events["off"]
+    assert x_extent(spans["release window"]) == pytest.approx(
+        ((off + rows["release_time"].low) * 1e3, (off + rows["release_time"].high) * 1e3))

@@ -90,6 +90,11 @@ class ActuationResult:
     samples_missing : sample indices missing inside the actuation (lost frames).
     noise_a : noise of one sample (one sigma, quantisation included) during the peak.
     complete : the actuation has its switch-off and release in the capture.
+    partial : ``None``, or where the capture cut this actuation short: ``"end"`` (the
+        capture ended before its current was back at zero and idle for ``min_idle``:
+        Ctrl-C, a stopped or killed capture, ``--duration``, the end of a recording or
+        of a scope record) or ``"start"`` (the capture began with current flowing).
+        ``check`` leaves partial actuations out of its verdict.
     notes : why figures are missing or how they were estimated.
     """
 
@@ -124,7 +129,15 @@ class ActuationResult:
     samples_missing: int = 0
     noise_a: float = 0.0
     complete: bool = True
+    partial: str | None = None
     notes: tuple[str, ...] = ()
+
+    def partial_text(self) -> str:
+        """How the capture cut this actuation short, e.g. ``"the capture ended during
+        actuation 3"`` (empty when it did not)."""
+        if self.partial is None:
+            return ""
+        return f"the capture {'ended' if self.partial == 'end' else 'began'} during actuation {self.number}"
 
     def to_dict(self) -> dict:
         """Plain JSON-ready dict (non-finite floats as ``None``)."""
@@ -312,6 +325,7 @@ class _Cut:
     end: int
     source: str
     notes: list[str] = field(default_factory=list)
+    partial: str | None = None      # "start" / "end": the capture cut it short there
 
 
 def _cuts_from_events(rd: _Reader, events: tuple[CaptureEvent, ...], lv: _Levels) -> list[_Cut]:
@@ -334,6 +348,8 @@ def _cuts_from_events(rd: _Reader, events: tuple[CaptureEvent, ...], lv: _Levels
             continue
         low = np.flatnonzero(rd.c[cut.off:limit] <= lv.zero)
         cut.end = cut.off + int(low[0]) if low.size else limit
+    if cuts and (cuts[-1].off is None or cuts[-1].end >= n):
+        cuts[-1].partial = "end"
     return cuts
 
 
@@ -362,6 +378,10 @@ def _cuts_from_waveform(rd: _Reader, lv: _Levels, sense: str, min_gap: int,
         after = np.flatnonzero(c[e:min(n, e + min_gap)] <= zero)
         end = int(e) + int(after[0]) if after.size else min(n, int(e) + min_gap)
         cut = _Cut(int(on), None, None, int(end), "waveform")
+        if e == ends[-1] and (n - 1 - int(e) < min_gap or end >= n):
+            cut.partial = "end"      # no idle after it: the capture may have stopped it
+        elif s == starts[0] and on == 0 and c[0] > zero:
+            cut.partial = "start"
         seg = c[cut.on:cut.end]
         if sense == "switch":
             # the peak ends at the run's highest current (the hold's on-time currents are
@@ -413,13 +433,15 @@ def _coil_off(seg: np.ndarray, zero: int, peak_end: int, spp: float | None) -> i
     """Offset of the first release sample in a coil-path run: the final decay falls from
     the top of the hold ripple through the hold's median level and on to zero, so the
     switch-off is the highest sample within a PWM period before the last (lightly
-    smoothed) sample at or above the hold's median."""
+    smoothed) sample at or above the median of the hold's second half."""
     nz = np.flatnonzero(seg > zero)
     last = int(nz[-1]) if nz.size else seg.size - 1
     if last <= peak_end + 1:
         return last + 1
     hold = seg[peak_end:last + 1]
-    level = float(np.median(hold))
+    # the median of the hold's second half: a hold still settling from the peak towards
+    # its mean lies above its overall median for a long time
+    level = float(np.median(hold[hold.size // 2:]))
     above = np.flatnonzero(hold >= level)
     k = peak_end + (int(above[-1]) if above.size else 0)
     reach = max(3, int(math.ceil(spp)) + 2) if spp else 3
@@ -481,8 +503,14 @@ def _measure(rd: _Reader, cut: _Cut, number: int, lv: _Levels, sense: str,
         peak_end = None
     if off is not None and off >= n:
         off = None
-    complete = off is not None and (cut.end < n or sense == "switch")
-    if off is None:
+    complete = off is not None and (cut.end < n or sense == "switch") and cut.partial is None
+    if cut.partial == "end":
+        notes.append("the capture ended during this actuation (its current was not back at zero "
+                     "and idle): incomplete, left out of the check")
+    elif cut.partial == "start":
+        notes.append("the capture began during this actuation (current already flowing): "
+                     "incomplete, left out of the check")
+    elif off is None:
         notes.append("the capture ends before the switch-off")
     pe = peak_end if peak_end is not None else (off if off is not None else end)
     pe = min(max(pe, on + 1), n)
@@ -543,7 +571,8 @@ def _measure(rd: _Reader, cut: _Cut, number: int, lv: _Levels, sense: str,
         peak_end_index=None if peak_end is None else int(idx[peak_end]),
         off_index=None if off is None else int(idx[off]),
         end_index=int(idx[cut.end]) if cut.end < n else int(idx[-1]) + 1,
-        samples_missing=int(missing), complete=bool(complete), notes=tuple(notes), **res)
+        samples_missing=int(missing), complete=bool(complete), partial=cut.partial,
+        notes=tuple(notes), **res)
 
 
 def _dip(amps: np.ndarray, t: np.ndarray, t_on: float, res: dict, notes: list[str],

@@ -14,7 +14,14 @@ Each figure passes when every actuation's value lies inside ``predicted x (1 +/-
 widened to at least two resolution steps of the measurement (two sample periods, or
 the time one ADC code takes, for times; two codes for currents). Default tolerances
 (:class:`Tolerances`) are our defaults, in line with common practice for an
-end-of-line test of a coil driver; every one can be overridden.
+end-of-line test of a coil driver; every one can be overridden. Each row also says how
+far its worst value lies from the nearer band edge, in percent of the band's width
+(``margin_pct``: 50 % at the prediction, 0 % on an edge, negative outside).
+
+An actuation that the capture cut short (it ended, or began, during it: see
+:attr:`~coildrive.bench.analysis.ActuationResult.partial`) is reported and left out of
+the verdict: a stopped capture must never fail a good device. A capture whose every
+actuation is cut short has nothing to check (:class:`~coildrive.errors.InputError`).
 """
 
 from __future__ import annotations
@@ -77,7 +84,11 @@ class OperatingPoint:
 @dataclass(frozen=True)
 class CheckItem:
     """One row of the check. ``measured`` is the actuation value farthest from the
-    prediction; ``low``..``high`` the accepted band; ``status`` pass / FAIL / n/a / info."""
+    prediction; ``low``..``high`` the accepted band; ``status`` pass / FAIL / n/a / info;
+    ``values`` per checked actuation (numbers in ``actuations``); ``margin_pct`` the
+    distance of ``measured`` to the nearer band edge in percent of the band's width
+    (50 at the band's middle, 0 on an edge, negative outside; ``None`` without a band or
+    a value), ``margins_pct`` the same per actuation."""
 
     name: str
     status: str
@@ -88,6 +99,9 @@ class CheckItem:
     unit: str
     detail: str
     values: tuple[float | None, ...] = ()
+    actuations: tuple[int, ...] = ()
+    margin_pct: float | None = None
+    margins_pct: tuple[float | None, ...] = ()
 
     @property
     def failed(self) -> bool:
@@ -189,7 +203,7 @@ def operating_point(drive: Drive, capture: Capture, supply: float | None = None,
     if supply is not None:
         v, v_from = float(supply), "--supply"
     elif meta.supply_v is not None:
-        v, v_from = float(meta.supply_v), "capture header"
+        v, v_from = float(meta.supply_v), ("scope supply column" if meta.link == "scope" else "capture header")
     else:
         codes = [e.value for e in capture.events if e.kind == EventKind.SUPPLY]
         if codes:
@@ -246,6 +260,7 @@ def predict(design, point: OperatingPoint, hold_time: float) -> tuple[dict, obje
         "hold_mean_a": float(res.hold.mean[0]),
         "hold_ripple_a": float(res.hold.ripple[0]),
         "release_time_s": float(res.release_time[0]),
+        "peak_switch_voltage_v": float(res.peak_switch_voltage[0]),
         "hold_duty": float(duty),
         "hold_frequency_hz": float(freq),
         "pull_in_current_a": drive.pull_in.current,
@@ -265,22 +280,37 @@ def predict(design, point: OperatingPoint, hold_time: float) -> tuple[dict, obje
 
 
 # --------------------------------------------------------------------------- the check
+def edge_margin_pct(value: float | None, low: float | None, high: float | None) -> float | None:
+    """Distance of ``value`` to the nearer edge of ``low..high``, in percent of the band's
+    width: 50 in the middle, 0 on an edge, negative outside (``None``: no band or value).
+
+    >>> edge_margin_pct(1.0, 0.9, 1.1), edge_margin_pct(1.12, 0.9, 1.1)
+    (50.0, -10.0)
+    """
+    if value is None or low is None or high is None or not high > low:
+        return None
+    return round(100.0 * min(value - low, high - value) / (high - low), 6)
+
+
 def _row(name: str, unit: str, values: list, predicted: float | None, tol: float, floor: float,
-         na_reason: str | None = None, missing_fails: bool = True, extra: str = "") -> CheckItem:
+         na_reason: str | None = None, missing_fails: bool = True, extra: str = "",
+         numbers: list[int] | None = None) -> CheckItem:
+    numbers = list(numbers) if numbers is not None else list(range(1, len(values) + 1))
+    nums = tuple(numbers)
     if na_reason is not None:
-        return CheckItem(name, NA, None, predicted, None, None, unit, na_reason, tuple(values))
+        return CheckItem(name, NA, None, predicted, None, None, unit, na_reason, tuple(values), nums)
     if predicted is None or not math.isfinite(predicted):
         return CheckItem(name, INFO, _first(values), None, None, None, unit,
-                         "no prediction from the model" + extra, tuple(values))
+                         "no prediction from the model" + extra, tuple(values), nums)
     half = max(abs(predicted) * tol, floor)
     low, high = predicted - half, predicted + half
     if not values:
         return CheckItem(name, FAIL, None, predicted, low, high, unit, "no actuation to measure",
                          ())
-    missing = [k + 1 for k, v in enumerate(values) if v is None]
+    missing = [k for k, v in zip(numbers, values) if v is None]
     present = [v for v in values if v is not None]
     worst = max(present, key=lambda v: abs(v - predicted)) if present else None
-    bad = [k + 1 for k, v in enumerate(values) if v is not None and not low <= v <= high]
+    bad = [k for k, v in zip(numbers, values) if v is not None and not low <= v <= high]
     if missing and missing_fails:
         status, detail = FAIL, f"not measured in actuation(s) {_list(missing)}"
     elif bad:
@@ -288,7 +318,22 @@ def _row(name: str, unit: str, values: list, predicted: float | None, tol: float
     else:
         status, detail = PASS, f"all {len(present)} within +/-{tol:.0%}" + (
             " (band widened to the resolution)" if half > abs(predicted) * tol else "")
-    return CheckItem(name, status, worst, predicted, low, high, unit, detail + extra, tuple(values))
+    return CheckItem(name, status, worst, predicted, low, high, unit, detail + extra, tuple(values), nums,
+                     edge_margin_pct(worst, low, high),
+                     tuple(edge_margin_pct(v, low, high) for v in values))
+
+
+def _switch_voltage_row(peak: float, predicted: float, rating: float) -> CheckItem:
+    """The switch-node voltage a scope saw against the switch's rating: a one-sided band
+    (``margin_pct`` is the headroom below the rating in percent of it)."""
+    ok = peak <= rating
+    detail = (f"highest sampled switch-node voltage, rating {rating:.4g} V"
+              + ("" if ok else ": above the switch's rating -- fit a stronger clamp or a higher-rated switch")
+              + "; a spike shorter than one sample can be higher")
+    margin = round(100.0 * (rating - peak) / rating, 6) if rating > 0 else None
+    return CheckItem("switch_voltage", PASS if ok else FAIL, peak,
+                     predicted if math.isfinite(predicted) else None, 0.0, rating, "V", detail,
+                     (peak,), (), margin, (margin,))
 
 
 def _first(values):
@@ -320,6 +365,8 @@ def check_capture(capture: Capture, design, tolerances: Tolerances | None = None
     point = operating_point(drive, capture, supply, coil_temp)
     meta = capture.meta
     notes: list[str] = []
+    if meta.link == "scope" and isinstance(meta.extra, dict):
+        notes.extend(str(x) for x in meta.extra.get("notes", []))
     if meta.board is not None and meta.board != board.name:
         notes.append(f"the capture says board {meta.board!r}, the drive uses {board.name!r}")
     for key, mine in (("peak_time_s", design.pull_in.peak_time_s), ("hold_duty", design.hold.duty),
@@ -331,7 +378,13 @@ def check_capture(capture: Capture, design, tolerances: Tolerances | None = None
     a = analyse(capture, pull_in_current=drive.pull_in.current,
                 dropout_current=drive.release.current, hold_frequency=f_hold,
                 use_events=use_events)
-    acts = a.actuations
+    cut_short = [x for x in a.actuations if x.partial is not None]
+    acts = [x for x in a.actuations if x.partial is None]
+    if cut_short and not acts:
+        raise InputError(capture.source, "", f"holds no complete actuation: {cut_short[-1].partial_text()} "
+                         "(nothing to check; capture at least one whole actuation, from idle to idle)")
+    numbers = [x.number for x in acts]
+    notes.extend(f"{x.partial_text()}: it is reported but left out of the check" for x in cut_short)
     holds = [x.hold_duration_s for x in acts if x.hold_duration_s]
     hold_time = float(np.median(holds)) if holds else max(2 * design.pull_in.peak_time_s, 20 / f_hold)
     pred, w = predict(design, point, hold_time)
@@ -340,12 +393,15 @@ def check_capture(capture: Capture, design, tolerances: Tolerances | None = None
     items: list[CheckItem] = []
 
     n = len(acts)
+    left_out = "".join(f"; left out: {x.partial_text()}" for x in cut_short)
     items.append(CheckItem("actuations", PASS if n else FAIL, float(n), None, None, None, "",
                            f"{n} found" + (f" from {acts[0].phases_from}" if n else
-                                           ": no current rose (open coil?) or no actuation captured")))
+                                           ": no current rose (open coil?) or no actuation captured")
+                           + left_out, actuations=tuple(numbers)))
     missing = sum(x.samples_missing for x in acts)
     link_detail = (f"{missing} missing in actuations; {capture.lost_frames} frames lost, "
-                   f"{capture.crc_errors} CRC errors")
+                   f"{capture.crc_errors} CRC errors") if meta.link != "scope" else (
+        f"{missing} missing in actuations (gaps in the scope record)")
     items.append(CheckItem("link", FAIL if missing else PASS, float(missing), 0.0, 0.0, 0.0, "samples",
                            link_detail))
     if n:
@@ -355,39 +411,46 @@ def check_capture(capture: Capture, design, tolerances: Tolerances | None = None
 
         items.append(_row("pull_in_time", "s", [x.pull_in_time_s for x in acts], pred["pull_in_time_s"],
                           tol.pull_in_time, res_floor("pull_in_resolution_s"),
-                          extra=f" (to {drive.pull_in.current:.4g} A)"))
+                          extra=f" (to {drive.pull_in.current:.4g} A)", numbers=numbers))
         seated = [x.seated_time_s for x in acts]
         if drive.armature is not None:
             items.append(_row("seated_time", "s", seated, pred["seated_time_s"], tol.seated_time,
-                              2.0 * period, extra=" (bottom of the current dip)"))
+                              2.0 * period, extra=" (bottom of the current dip)", numbers=numbers))
         else:
             shown = [v for v in seated if v is not None]
             items.append(CheckItem("seated_time", INFO, _first(seated), None, None, None, "s",
                                    ("dip seen in " f"{len(shown)} of {n}" if shown else "no dip seen")
-                                   + "; the drive has no [armature] model to predict it", tuple(seated)))
+                                   + "; the drive has no [armature] model to predict it", tuple(seated),
+                                   tuple(numbers)))
         from_waveform = acts[0].phases_from == "waveform"
         pk = pred["peak_duration_s"] + (pred["hold_duty"] / f_hold if from_waveform else 0.0)
         tick = 1.0 / board.tick.rate
         items.append(_row("peak_duration", "s", [x.peak_duration_s for x in acts], pk, tol.peak_duration,
                           2.0 * period + tick,
                           extra=" (from the waveform: to the first switch-off, one hold on-time "
-                                "after the peak)" if from_waveform else ""))
+                                "after the peak)" if from_waveform else "", numbers=numbers))
         sense_switch = a.sense_position == "switch"
         switch_dcm = sense_switch and all(x.hold_discontinuous for x in acts)
         items.append(_row("hold_mean", "A", [x.hold_mean_a for x in acts], pred["hold_mean_a"],
                           tol.hold_mean, 2.0 * apc,
                           na_reason="sense under the switch in discontinuous conduction: the coil "
-                                    "current cannot be seen while the switch is off" if switch_dcm else None))
+                                    "current cannot be seen while the switch is off" if switch_dcm else None,
+                          numbers=numbers))
         spp = fs / f_hold
         resolved = spp >= 10.0
         items.append(_row("hold_ripple", "A", [x.hold_ripple_a for x in acts], pred["hold_ripple_a"],
                           tol.hold_ripple, 2.0 * apc,
                           na_reason=None if resolved else
-                          f"{spp:.3g} samples per PWM period (< 10): the sample rate cannot resolve the ripple"))
+                          f"{spp:.3g} samples per PWM period (< 10): the sample rate cannot resolve the ripple",
+                          numbers=numbers))
         items.append(_row("release_time", "s", [x.release_time_s for x in acts], pred["release_time_s"],
                           tol.release_time, res_floor("release_resolution_s"),
                           na_reason="sense under the switch: the release decay is invisible" if sense_switch else None,
-                          extra=f" (to {drive.release.current:.4g} A)"))
+                          extra=f" (to {drive.release.current:.4g} A)", numbers=numbers))
+    node_peak = meta.extra.get("switch_node_peak_v") if isinstance(meta.extra, dict) else None
+    if n and isinstance(node_peak, (int, float)) and math.isfinite(node_peak):
+        items.append(_switch_voltage_row(float(node_peak), pred["peak_switch_voltage_v"],
+                                         board.switch.max_voltage))
     return CheckReport(items=tuple(items), analysis=a, point=point, tolerances=tol, prediction=pred,
                        drive_name=drive.name, board_name=board.name, capture_source=capture.source,
                        notes=tuple(notes + list(a.notes)), cautions=BENCH_CAUTIONS, waveform=w)

@@ -15,9 +15,10 @@ before the dip: the motional back-EMF bends the rise well before the top, so the
 stops early. Codes are read mid-step (``code + 0.5``, a truncating ADC) and samples at
 zero or at full scale are left out (there the mid-step reading is biased).
 
-Also reported: the seat time (bottom of the current dip) and the drop-out current seen
-in the release bump (the current when the opening armature turned the decay around; the
-armature let go slightly above it), when the capture shows them.
+Actuations the capture cut short (``partial``) are not fitted. Also reported: the seat
+time (bottom of the current dip) and the drop-out current seen in the release bump (the
+current when the opening armature turned the decay around; the armature let go slightly
+above it), when the capture shows them.
 """
 
 from __future__ import annotations
@@ -165,6 +166,9 @@ def fit_capture(capture: Capture, board: Board, supply: float, coil_temp: float 
     seats, tops, drops = [], [], []
     idx = capture.index
     for act in analysis.actuations:
+        if act.partial is not None:
+            notes.append(f"{act.partial_text()}: not fitted")
+            continue
         a = int(np.searchsorted(idx, act.on_index))
         end_index = act.peak_end_index if act.peak_end_index is not None else act.off_index
         if end_index is None:

@@ -29,6 +29,27 @@ def _fraction(text: Optional[str], option: str) -> float | None:
     return value
 
 
+def _read(capture: Path, columns: Optional[str], current_scale: Optional[str],
+          sample_interval: Optional[str]):
+    """The capture, whatever wrote it: a capture file, text-mode lines or a scope CSV."""
+    from ..bench.scope import ScopeOptions, parse_columns, parse_current_scale, read_any_capture
+
+    interval = _quantity(sample_interval, "time", "--sample-interval")
+    if interval is not None and not interval > 0:
+        raise InputError("--sample-interval", "", f"{sample_interval!r} must be a time above zero")
+    options = ScopeOptions(parse_columns(columns), parse_current_scale(current_scale), interval)
+    return read_any_capture(capture, options)
+
+
+_CAPTURE_HELP = ("Capture file (coildrive capture format), text-mode index,adc lines, or an "
+                 "oscilloscope CSV of time and coil current.")
+_COLUMNS_HELP = ('Scope CSV: which column is which, ROLE=NAME or ROLE=NUMBER (from 1), roles time, '
+                 'current, switch (gate/switch state, high = on: gives the phases), node (switch-node '
+                 'voltage), supply; e.g. "time=1,current=CH1,switch=CH2".')
+_SCALE_HELP = 'Scope CSV: the current probe\'s scale, A per V ("10 A/V", "100 mV/A" or 10).'
+_INTERVAL_HELP = 'Scope CSV: time between rows, when the file counts samples and does not say it (e.g. "1 us").'
+
+
 def _board_for(capture, board: Optional[str]):
     """The board from ``--board``, else the bundled board the capture names."""
     from ..config import load_board, resolve_board
@@ -51,6 +72,10 @@ def _cell(value, unit: str) -> str:
     return format_si(float(value), unit)
 
 
+def _margin(value) -> str:
+    return "-" if value is None else f"{value:+.0f} %"
+
+
 def _print_check(report, console=None) -> None:
     from rich.console import Console
     from rich.markup import escape
@@ -62,16 +87,17 @@ def _print_check(report, console=None) -> None:
     p = report.point
     t = Table(title=f"coildrive check: {report.capture_source} against {report.drive_name} on {report.board_name}")
     for col, just in (("figure", "left"), ("measured", "right"), ("predicted", "right"),
-                      ("accepted", "right"), ("result", "left"), ("detail", "left")):
+                      ("accepted", "right"), ("to edge", "right"), ("result", "left"), ("detail", "left")):
         t.add_column(col, justify=just)
     marks = {"pass": "[green]pass[/green]", "FAIL": "[bold red]FAIL[/bold red]",
              "n/a": "[yellow]n/a[/yellow]", "info": "[cyan]info[/cyan]"}
     for i in report.items:
         band = "-" if i.low is None else f"{_cell(i.low, i.unit)} .. {_cell(i.high, i.unit)}"
         t.add_row(i.name, _cell(i.measured, i.unit), _cell(i.predicted, i.unit), band,
-                  marks.get(i.status, i.status), escape(i.detail))
+                  _margin(i.margin_pct), marks.get(i.status, i.status), escape(i.detail))
     t.caption = escape(f"at {p.supply_v:.4g} V ({p.supply_from}), coil {p.coil_temp_c:.4g} degC ({p.coil_temp_from}); "
-                 "measured = the actuation farthest from the prediction")
+                 "measured = the actuation farthest from the prediction; to edge = its distance to the "
+                 "nearer band edge in % of the band (50 % = on the prediction, below 0 = outside)")
     console.print(t)
     for note in report.notes:
         console.print(f"  note: {escape(note)}")
@@ -81,7 +107,7 @@ def _print_check(report, console=None) -> None:
 
 @user_errors
 def check_command(
-    capture: Path = typer.Argument(..., help="Capture file (coildrive capture format, or text-mode index,adc lines)."),
+    capture: Path = typer.Argument(..., help=_CAPTURE_HELP),
     drive: Path = typer.Argument(..., help="Drive file (TOML) whose design the firmware runs."),
     board: Optional[str] = typer.Option(None, "--board", "-b", help="Bundled board name or board file; overrides the drive file's board."),
     supply: Optional[str] = typer.Option(None, "--supply", help='Bus voltage during the capture, e.g. 24 or "24 V" (default: the capture\'s, else the nominal supply).'),
@@ -92,12 +118,14 @@ def check_command(
     tol_hold_mean: Optional[str] = typer.Option(None, "--tol-hold-mean", help="Tolerance on the hold mean current (default 0.10)."),
     tol_ripple: Optional[str] = typer.Option(None, "--tol-ripple", help="Tolerance on the hold ripple (default 0.30)."),
     tol_release: Optional[str] = typer.Option(None, "--tol-release", help="Tolerance on the release time (default 0.20)."),
-    no_events: bool = typer.Option(False, "--no-events", help="Find the phases from the waveform even when the capture has events."),
+    no_events: bool = typer.Option(False, "--no-events", help="Find the phases from the waveform even when the capture has events (or, in a scope CSV, a switch column)."),
+    columns: Optional[str] = typer.Option(None, "--columns", help=_COLUMNS_HELP),
+    current_scale: Optional[str] = typer.Option(None, "--current-scale", help=_SCALE_HELP),
+    sample_interval: Optional[str] = typer.Option(None, "--sample-interval", help=_INTERVAL_HELP),
     as_json: bool = typer.Option(False, "--json", help="Print the report as one JSON document on stdout."),
-    plot: Optional[Path] = typer.Option(None, "--plot", help="Write a PNG of the measured actuations over the predicted one."),
+    plot: Optional[Path] = typer.Option(None, "--plot", help="Write a PNG of the measured actuations over the predicted one, with the acceptance bands."),
 ) -> None:
     """Check a capture against the design of DRIVE: a pass/fail table; exit 1 on any fail."""
-    from ..bench.capture_file import read_capture
     from ..bench.check import Tolerances, check_capture
     from ..config import load_drive
     from ..design import design
@@ -111,7 +139,7 @@ def check_command(
     tolerances = Tolerances(**{k: v for k, v in overrides.items() if v is not None})
     v = _quantity(supply, "voltage", "--supply")
     t = _quantity(coil_temp, "temperature", "--coil-temp")
-    cap = read_capture(capture)
+    cap = _read(capture, columns, current_scale, sample_interval)
     result = design(load_drive(drive, board))
     report = check_capture(cap, result, tolerances, supply=v, coil_temp=t, use_events=not no_events)
     if as_json:
@@ -128,19 +156,21 @@ def check_command(
 
 @user_errors
 def fit_command(
-    capture: Path = typer.Argument(..., help="Capture file (coildrive capture format, or text-mode index,adc lines)."),
+    capture: Path = typer.Argument(..., help=_CAPTURE_HELP),
     board: Optional[str] = typer.Option(None, "--board", "-b", help="Bundled board name or board file (default: the board the capture names)."),
     supply: Optional[str] = typer.Option(None, "--supply", help='Bus voltage during the capture, e.g. 24 or "24 V" (default: the capture\'s).'),
     coil_temp: Optional[str] = typer.Option(None, "--coil-temp", help='Coil temperature during the capture (default: the capture\'s, else 20 degC, flagged).'),
+    columns: Optional[str] = typer.Option(None, "--columns", help=_COLUMNS_HELP),
+    current_scale: Optional[str] = typer.Option(None, "--current-scale", help=_SCALE_HELP),
+    sample_interval: Optional[str] = typer.Option(None, "--sample-interval", help=_INTERVAL_HELP),
     as_json: bool = typer.Option(False, "--json", help="Print the fit as one JSON document on stdout."),
 ) -> None:
     """Fit the coil's R and L from the rise before the armature moves; print a \\[coil] section."""
     from ..bench.analysis import analyse
-    from ..bench.capture_file import read_capture
     from ..bench.check import prepare_capture
     from ..bench.fit import fit_capture
 
-    cap = read_capture(capture)
+    cap = _read(capture, columns, current_scale, sample_interval)
     brd = _board_for(cap, board)
     cap = prepare_capture(cap, brd)
     v = _quantity(supply, "voltage", "--supply")
