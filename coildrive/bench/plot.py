@@ -22,7 +22,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..plotting import agg_figure, png_bytes
-from .capture_file import Capture
+from .capture_file import Capture, code_current
 from .check import FAIL, CheckReport
 
 
@@ -59,7 +59,7 @@ def check_figure(report: CheckReport, capture: Capture, max_actuations: int = 5)
         hi = int(np.searchsorted(capture.index, act.end_index)) + int(0.0005 * fs)
         lo, hi = max(lo, 0), min(hi, len(capture))
         t = capture.index[lo:hi] / fs - act.on_at_s
-        i = (capture.code[lo:hi].astype(float) - zero) * apc
+        i = code_current(capture.code[lo:hi], zero, apc)  # mid-step, as the analysis reads it
         if act.partial is not None:
             ax.plot(t * 1e3, i, lw=0.5, color="0.6",
                     label=f"#{act.number}: cut short at the {act.partial} of the capture (not checked)")
