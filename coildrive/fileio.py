@@ -58,9 +58,11 @@ def remove_stale_temporaries(target: str | os.PathLike) -> list[str]:
     return removed
 
 
-def _temporary_beside(target: Path) -> str:
+def temporary_beside(target: str | os.PathLike) -> str:
     """A new empty file ``.NAME.PID.XXXX.tmp`` beside ``target`` (the PID lets a later run
-    tell a killed run's leftovers from a running one's)."""
+    tell a killed run's leftovers from a running one's); stale ones of dead runs are
+    removed first (:func:`remove_stale_temporaries`)."""
+    target = Path(target)
     folder = target.parent if str(target.parent) else Path(".")
     remove_stale_temporaries(target)
     try:
@@ -77,7 +79,7 @@ def _temporary_beside(target: Path) -> str:
 
 
 @contextlib.contextmanager
-def atomic_path(path: str | os.PathLike) -> Iterator[str]:
+def atomic_path(path: str | os.PathLike, *, overwrite: bool = True, option: str = "--out") -> Iterator[str]:
     """A temporary file beside ``path`` for the caller to write; renamed over ``path``
     when the block ends normally, deleted when it raises.
 
@@ -87,14 +89,16 @@ def atomic_path(path: str | os.PathLike) -> Iterator[str]:
     outright leaves ``.NAME.PID.XXXX.tmp``, which the next write of ``NAME`` removes. A
     folder that is missing or cannot be written raises
     :class:`~coildrive.errors.InputError` (naming ``path``) before the block runs; a write
-    that fails (a full disk) raises :class:`~coildrive.errors.OutputError`.
+    that fails (a full disk) raises :class:`~coildrive.errors.OutputError`. Without
+    ``overwrite`` an existing ``path`` is left alone and :func:`publish_new` raises an
+    :class:`~coildrive.errors.InputError` naming ``option``.
     """
     target = Path(path)
-    tmp = _temporary_beside(target)
+    tmp = temporary_beside(target)
     try:
         yield tmp
         try:
-            os.replace(tmp, target)
+            publish_new(tmp, target, overwrite=overwrite, option=option)
         except OSError as err:
             raise OutputError(str(path), f"cannot be written ({err.strerror or err})") from None
     except BaseException:

@@ -869,6 +869,23 @@ def _check_info_lines(data: bytes, source: str) -> None:
                                  "a rate above zero (e.g. 200000 or 84000000/420) and bits 1..16")
 
 
+def count_records(path: str | os.PathLike, chunk: int = 1 << 20) -> tuple[int, int]:
+    """``(samples, events)`` in the binary capture file ``path`` as it is on disk (whole
+    records only), read in chunks of ``chunk`` records: what a capture kept, whatever it
+    decoded."""
+    samples = events = 0
+    with open(path, "rb") as handle:
+        handle.seek(HEADER_SIZE)
+        while True:
+            data = handle.read(chunk * RECORD_SIZE)
+            whole = len(data) // RECORD_SIZE
+            if not whole:
+                return samples, events
+            kind = np.frombuffer(data, RECORD, count=whole)["kind"]
+            samples += int(np.count_nonzero(kind == RecordKind.SAMPLE))
+            events += int(np.count_nonzero(kind == RecordKind.EVENT))
+
+
 def write_capture(path: str | os.PathLike, capture: Capture) -> None:
     """Write a :class:`Capture` as a capture file (indices modulo 2**32), samples and
     events interleaved in index order, gaps and error counts after them."""
