@@ -30,3 +30,17 @@ def unreadable(source: str, err: OSError, expected: str | None = None) -> InputE
     if expected is not None and isinstance(err, IsADirectoryError):
         return InputError(source, "", f"is a folder, expected {expected}")
     return InputError(source, "", f"cannot be read ({err.strerror})")
+
+
+class OutputError(CoildriveError, OSError):
+    """An output file that could not be written (a full disk, a read-only folder): the
+    file named and the system's reason, as one line. Also an :class:`OSError`, for code
+    that handles those."""
+
+    def __init__(self, path: str, message: str):
+        self.path = path
+        self.message = message
+        Exception.__init__(self, f"{path}: {message}")
+
+    def __str__(self) -> str:
+        return f"{self.path}: {self.message}"

@@ -136,13 +136,16 @@ def parse_quantity(value: object, dimension: str, source: str = "", key: str = "
     expected = f"expected {_article(dim.name)}" + (f" in {dim.si}" if dim.si else "")
     expected += f", e.g. {example_for(dimension)}"
     if isinstance(value, bool) or not isinstance(value, (int, float, str)):
-        raise InputError(source, key, f"{value!r} is not a number, {expected}")
+        raise InputError(source, key, f"{short_repr(value)} is not a number, {expected}")
     if isinstance(value, (int, float)):
-        number = float(value)
+        try:
+            number = float(value)
+        except OverflowError:   # TOML integers are unbounded: -10**400 parses
+            raise InputError(source, key, f"{short_repr(value)} is too large a number, {expected}") from None
     else:
         match = _NUMBER.match(value)
         if not match:
-            raise InputError(source, key, f"{value!r} is not a number with a unit, {expected}")
+            raise InputError(source, key, f"{short_repr(value)} is not a number with a unit, {expected}")
         number = float(match.group(1))
         symbol = match.group(2)
         if dimension == "temperature":
@@ -151,21 +154,27 @@ def parse_quantity(value: object, dimension: str, source: str = "", key: str = "
             elif symbol in _TEMPERATURE_UNITS:
                 number += _TEMPERATURE_UNITS[symbol]
             else:
-                raise InputError(source, key, f"{value!r}: unit {symbol!r} is not a temperature, {expected}")
+                raise InputError(source, key, f"{short_repr(value)}: unit {symbol!r} is not a temperature, {expected}")
         elif symbol:
             found = _lookup(symbol)
             if found is None:
-                raise InputError(source, key, f"{value!r}: unknown unit {symbol!r}, {expected}")
+                raise InputError(source, key, f"{short_repr(value)}: unknown unit {symbol!r}, {expected}")
             got_dim, scale = found
             if got_dim != dimension:
                 raise InputError(
                     source, key,
-                    f"{value!r} is {_article(DIMENSIONS[got_dim].name)}, {expected}",
+                    f"{short_repr(value)} is {_article(DIMENSIONS[got_dim].name)}, {expected}",
                 )
             number *= scale
     if not math.isfinite(number):
-        raise InputError(source, key, f"{value!r} is not finite, {expected}")
+        raise InputError(source, key, f"{short_repr(value)} is not finite, {expected}")
     return number
+
+
+def short_repr(value: object) -> str:
+    """``repr`` of a file value, cut to a readable length (a 400-digit integer stays one line)."""
+    text = repr(value)
+    return text if len(text) <= 40 else f"{text[:18]}...{text[-6:]} ({len(text)} characters)"
 
 
 def format_si(value: float, unit: str, digits: int = 4) -> str:

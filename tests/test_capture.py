@@ -533,10 +533,11 @@ def test_replay_cli_binary_text_csv_and_actuations(demo, tmp_path):
     got = read_capture(tmp_path / "t.cdcap")
     assert got.meta.link == "text" and [e.kind for e in got.events].count(EventKind.OFF) == 1
     assert np.array_equal(got.code, sent.code[:len(got)])
-    # text replayed as binary: nothing decodes, the hint names the mode
+    # text replayed as binary: nothing decodes, nothing is written, the hint names the mode
     r = runner.invoke(app, ["capture", "--replay", str(text), "--board", BOARD,
                             "--out", str(tmp_path / "x.cdcap")])
-    assert r.exit_code == 0 and "look like text lines: use --text" in r.output, r.output
+    assert r.exit_code == 2 and "look like text lines: use --text" in r.output, r.output
+    assert not (tmp_path / "x.cdcap").exists()
 
 
 def test_guess_mode():

@@ -263,7 +263,7 @@ def test_index_wrap_and_restart():
     (b"\x00\x01\x02\x03garbage", "neither"),
     (b'{"format": "coildrive-capture", "version": 1}', "shorter than"),
     (b'{"format": "coildrive-capture", "version": 7}'.ljust(4096) + b"x" * 8, "not supported"),
-    (b'{"format": "coildrive-capture", "version": 1, "sample_rate_hz": -5}'.ljust(4096), "greater than zero"),
+    (b'{"format": "coildrive-capture", "version": 1, "sample_rate_hz": -5}'.ljust(4096), "is outside 1..1e+07 Hz"),
     (b"[coil]\nresistance = 3\n", "no sample line"),
 ])
 def test_bad_files_raise_input_errors(tmp_path, content, message):

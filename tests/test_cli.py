@@ -127,7 +127,7 @@ BAD_INPUTS = [
     ("[release]", "[relase]\ncurrent = 1\n[release]", "relase: unknown section [relase]"),
     ('frequency = "25 kHz"', 'frequency = "25 kV"', "hold.frequency: '25 kV' is a voltage, expected a frequency"),
     ('max = "50 degC"', 'max = "50 V"', "ambient.max: '50 V': unit 'V' is not a temperature"),
-    ('margin = 1.5', 'margin = 0.5', "pull_in.margin: 0.5 is below 1"),
+    ('margin = 1.5', 'margin = 0.5', "pull_in.margin: 0.5 is outside 1 .. 10"),
     ("[hold]", "[hold]\nmode = 'sideways'", "hold.mode: 'sideways' is not one of"),
     ('current = "0.10 A"', 'current = "0.3 A"', "release.current: 0.3 A drop-out is not below hold.current"),
     ("[release]", "[freewheel]\nzener_voltage = \"-3 V\"\n[release]", "freewheel.zener_voltage: '-3 V' must not be negative"),

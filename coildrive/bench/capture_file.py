@@ -49,9 +49,9 @@ from typing import Any, Iterable
 
 import numpy as np
 
-from ..errors import InputError, unreadable
+from ..errors import InputError
 from .messages import Event, EventKind, Info, Samples
-from .protocol import NO_VALUE
+from .protocol import MAX_SAMPLES_PER_FRAME, NO_VALUE
 
 FORMAT_NAME = "coildrive-capture"
 FORMAT_VERSION = 1
@@ -587,10 +587,94 @@ def _nearest(raw_index: int, position: int, sample_pos: np.ndarray, sample_raw: 
     return int(sample_idx[k]) + d
 
 
+#: Sample indices a jump may skip beyond what the file's lost frames and overruns explain
+#: (0.33 s at 200 kS/s): a device's own hiccups. A larger unexplained jump is a damaged
+#: record, and would make the analysis and the check span, and allocate for, indices the
+#: file never held.
+JUMP_FLOOR = 1 << 16
+
+
+def _offset(pos: int) -> str:
+    return f"byte {HEADER_SIZE + int(pos) * RECORD_SIZE}"
+
+
+def _check_structure(rec: np.ndarray, meta: CaptureMeta, source: str) -> None:
+    """Record fields that only a damaged file breaks (the writer never makes them)."""
+    kind, aux, value = rec["kind"], rec["aux"], rec["value"]
+
+    def first(mask: np.ndarray, what) -> None:
+        bad = np.flatnonzero(mask)
+        if bad.size:
+            pos = int(bad[0])
+            raise InputError(source, _offset(pos), f"{what(pos)} ({bad.size} such record(s); "
+                             "a damaged or misaligned capture file)")
+    sample = kind == RecordKind.SAMPLE
+    first(sample & (aux != 0), lambda p: f"a sample record with aux byte {aux[p]}, expected 0")
+    if meta.adc_bits is not None:
+        top = (1 << meta.adc_bits) - 1
+        first(sample & (value > top), lambda p: f"ADC code {value[p]} is above the "
+              f"{meta.adc_bits}-bit ADC's {top}")
+    high = np.flatnonzero(kind == RecordKind.EVENT_HIGH)
+    orphan = np.zeros(kind.size, bool)
+    orphan[high] = (high == 0) | (kind[np.maximum(high - 1, 0)] != RecordKind.EVENT) | (aux[high] != 0)
+    first(orphan, lambda p: "an event's high-16-bit record that follows no event")
+    gap = kind == RecordKind.GAP
+    first(gap & ((aux != 0) | (value == 0)), lambda p: f"a lost-frames record with aux {aux[p]} "
+          f"and count {value[p]}, expected aux 0 and a count >= 1")
+    first((kind == RecordKind.ERRORS) & (aux > ErrorKind.MALFORMED),
+          lambda p: f"a frame-errors record of type {aux[p]}, expected 0 (CRC) or 1 (malformed)")
+
+
+def _pause_cover(pauses: list[tuple[int, int]], a: int, b: int) -> int:
+    """Indices in ``[a, b)`` that the ``(start, end)`` pauses cover (merged)."""
+    covered, reach = 0, a
+    for lo, hi in sorted(pauses):
+        lo, hi = max(lo, reach), min(hi, b)
+        if hi > lo:
+            covered += hi - lo
+            reach = hi
+    return covered
+
+
+def check_index_jumps(index: np.ndarray, events: Iterable[CaptureEvent], slack: int, source: str,
+                      where) -> None:
+    """Raise :class:`InputError` for a forward jump of the sample index that more than
+    ``slack`` indices not covered by ``pause`` events make, or jumps adding up to more
+    than ``slack`` + the samples present (the file's size bounds what its indices span).
+    ``where(k)`` names the place of sample ``k`` (a byte offset, a sample index)."""
+    if index.size < 2:
+        return
+    skipped = np.diff(index) - 1
+    pauses = [(e.index, e.index + e.value) for e in events
+              if e.kind == EventKind.PAUSE and e.value > 0]
+    total = 0
+    for k in np.flatnonzero(skipped > 0):
+        jump = int(skipped[k])
+        if jump > slack or total + jump > slack + index.size:
+            jump -= _pause_cover(pauses, int(index[k]) + 1, int(index[k + 1]))
+        total += jump
+        if jump > slack:
+            raise InputError(source, where(int(k) + 1), f"the sample index jumps from "
+                             f"{int(index[k])} to {int(index[k + 1])}: {jump:,} indices that no "
+                             f"lost frame, overrun or pause explains (at most {slack:,}; a damaged "
+                             "record?)")
+        if total > slack + index.size:
+            raise InputError(source, where(int(k) + 1), f"the sample indices skip {total:,} "
+                             f"unexplained indices up to here, more than the {index.size:,} "
+                             f"samples the file holds + {slack:,} (damaged records?)")
+
+
 def parse_records(body: bytes | memoryview, meta: CaptureMeta, source: str = "memory") -> Capture:
-    """A :class:`Capture` from the record part of a capture file (after the header)."""
+    """A :class:`Capture` from the record part of a capture file (after the header).
+
+    Untrusted input: a record that the writer never makes (a damaged or misaligned file),
+    an event far from the samples around it or a sample index jump that the lost frames,
+    overruns and pauses in the file do not explain raise :class:`InputError` naming the
+    byte offset of the record, so that nothing downstream sizes an array by a damaged
+    index."""
     whole = len(body) // RECORD_SIZE * RECORD_SIZE
     rec = np.frombuffer(body, RECORD, count=whole // RECORD_SIZE)
+    _check_structure(rec, meta, source)
     kind = rec["kind"]
     is_sample = kind == RecordKind.SAMPLE
     sample_pos = np.flatnonzero(is_sample)
@@ -599,6 +683,7 @@ def parse_records(body: bytes | memoryview, meta: CaptureMeta, source: str = "me
     code = rec["value"][sample_pos].copy()
     events: list[CaptureEvent] = []
     gaps: list[Gap] = []
+    placed: list[tuple[int, int]] = []        # (record position, offset from its sample)
     crc = malformed = 0
     other = np.flatnonzero(~is_sample)
     for n, pos in enumerate(other):
@@ -607,28 +692,97 @@ def parse_records(body: bytes | memoryview, meta: CaptureMeta, source: str = "me
             if pos + 1 < rec.size and rec["kind"][pos + 1] == RecordKind.EVENT_HIGH:
                 value = value | (int(rec["value"][pos + 1]) << 16)
                 value = value - _U32 if value >= _HALF else value
-            events.append(CaptureEvent(_nearest(raw, pos, sample_pos, sample_raw, index), aux, value))
+            at = _nearest(raw, pos, sample_pos, sample_raw, index)
+            events.append(CaptureEvent(at, aux, value))
         elif k == RecordKind.GAP:
-            gaps.append(Gap(_nearest(raw, pos, sample_pos, sample_raw, index), value))
+            at = _nearest(raw, pos, sample_pos, sample_raw, index)
+            gaps.append(Gap(at, value))
         elif k == RecordKind.ERRORS:
             if aux == ErrorKind.CRC:
                 crc += value
             else:
                 malformed += value
-        # EVENT_HIGH is read with its event; unknown kinds are skipped (newer writers)
+            continue
+        else:
+            continue   # EVENT_HIGH is read with its event; unknown kinds are skipped (newer writers)
+        if sample_pos.size:
+            near = min(max(int(np.searchsorted(sample_pos, pos)) - 1, 0), sample_pos.size - 1)
+            placed.append((int(pos), at - int(index[near])))
+    lost = sum(g.frames for g in gaps)
+    overrun = sum(e.value for e in events if e.kind == EventKind.OVERRUN and e.value > 0)
+    slack = JUMP_FLOOR + lost * MAX_SAMPLES_PER_FRAME + overrun
+    pause_total = sum(e.value for e in events if e.kind == EventKind.PAUSE and e.value > 0)
+    for pos, d in placed:
+        if abs(d) > slack + pause_total:
+            raise InputError(source, _offset(pos), f"an event or lost-frames record {d:+,} sample "
+                             f"indices from the samples beside it (at most {slack + pause_total:,}; "
+                             "a damaged record?)")
+    check_index_jumps(index, events, slack, source, lambda k: _offset(sample_pos[k]))
     return Capture(index, code, tuple(events), tuple(gaps), meta, crc, malformed, restarts,
                    len(body) - whole, source)
 
 
 def _meta_from_header(doc: dict, source: str) -> CaptureMeta:
     known = {k: doc[k] for k in _META_FIELDS if k in doc and k != "extra"}
-    extra = dict(doc.get("extra") or {})
+    extra = doc.get("extra")
+    if extra is not None and not isinstance(extra, dict):
+        raise InputError(source, "header extra", f"{_short(extra)} is not a JSON object of "
+                         "key: value pairs")
+    extra = dict(extra or {})
     skip = {"format", "version", "header_size", "record", "extra"}
     extra.update({k: v for k, v in doc.items() if k not in _META_FIELDS and k not in skip})
-    try:
-        return CaptureMeta(**known, extra=extra)
-    except TypeError as err:  # pragma: no cover - dataclass rejects nothing we pass
-        raise InputError(source, "header", str(err)) from None
+    return CaptureMeta(**known, extra=extra)
+
+
+def _short(value: Any) -> str:
+    text = repr(value)
+    return text if len(text) <= 60 else text[:40] + "..."
+
+
+def _number(value: Any) -> bool:
+    return isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value)
+
+
+#: Ranges of the header's numbers (SI, degC), as the drive and board files bound them.
+_HEADER_RANGES = {
+    "sample_rate_hz": (1.0, 10e6, "Hz"),
+    "amps_per_code": (1e-9, 1e3, "A per code"),
+    "supply_v": (0.5, 1000.0, "V"),
+    "coil_temp_c": (-75.0, 250.0, "degC"),
+    "peak_time_s": (1e-7, 100.0, "s"),
+    "hold_duty": (0.0, 1.0, ""),
+    "hold_frequency_hz": (1.0, 5e6, "Hz"),
+}
+
+
+def _validate_meta(meta: CaptureMeta, source: str, where: str = "header") -> None:
+    """Every header field's type and range (the header is untrusted input); ``where``
+    names the place in the file (``header``, or a text capture's ``line N``)."""
+    def fail(key: str, message: str) -> InputError:
+        return InputError(source, f"{where} {key}", message)
+
+    for key, (low, high, unit) in _HEADER_RANGES.items():
+        value = getattr(meta, key)
+        if value is None:
+            continue
+        if not _number(value):
+            raise fail(key, f"{_short(value)} is not a number, expected {low:g}..{high:g} {unit}".rstrip())
+        if not low <= value <= high:
+            raise fail(key, f"{value!r} is outside {low:g}..{high:g} {unit}".rstrip())
+    if meta.adc_bits is not None and not (isinstance(meta.adc_bits, int) and not isinstance(meta.adc_bits, bool)
+                                          and 1 <= meta.adc_bits <= 16):
+        raise fail("adc_bits", f"{_short(meta.adc_bits)} is not an integer 1..16")
+    top = (1 << meta.adc_bits) - 1 if meta.adc_bits is not None else 0xFFFF
+    if isinstance(meta.zero_code, bool) or not isinstance(meta.zero_code, int) or not 0 <= meta.zero_code <= top:
+        raise fail("zero_code", f"{_short(meta.zero_code)} is not an integer 0..{top}")
+    if meta.sense_position not in (None, "coil", "switch"):
+        raise fail("sense_position", f"{_short(meta.sense_position)} is not 'coil' or 'switch'")
+    for key in ("board", "drive", "firmware_id", "started_utc", "link"):
+        value = getattr(meta, key)
+        if value is not None and not isinstance(value, str):
+            raise fail(key, f"{_short(value)} is not a string")
+    if not isinstance(meta.has_position_switch, bool):
+        raise fail("has_position_switch", f"{_short(meta.has_position_switch)} is not true or false")
 
 
 def read_capture(path: str | os.PathLike) -> Capture:
@@ -638,11 +792,10 @@ def read_capture(path: str | os.PathLike) -> Capture:
     :attr:`Capture.truncated_bytes`. Raises :class:`InputError` for a missing file or a
     file that is neither format.
     """
+    from ..fileio import read_input
+
     source = str(path)
-    try:
-        data = Path(path).read_bytes()
-    except OSError as err:
-        raise unreadable(source, err, "a capture file") from None
+    data = read_input(path, "a capture file")
     if data.startswith(_MAGIC):
         return _read_binary(data, source)
     return read_text_capture(data, source)
@@ -656,32 +809,19 @@ def _read_binary(data: bytes, source: str) -> Capture:
         doc = json.loads(data[:HEADER_SIZE].decode("utf-8"))
     except (UnicodeDecodeError, json.JSONDecodeError) as err:
         raise InputError(source, "header", f"is not valid JSON ({err})") from None
+    except RecursionError:
+        raise InputError(source, "header", "nests JSON too deeply to be a capture header") from None
     if not isinstance(doc, dict) or doc.get("format") != FORMAT_NAME:
         raise InputError(source, "header", "is not a coildrive capture header")
     version = doc.get("version")
+    if doc.get("header_size", HEADER_SIZE) != HEADER_SIZE:
+        raise InputError(source, "header header_size", f"{_short(doc['header_size'])} is not "
+                         f"{HEADER_SIZE}, the header size of version {FORMAT_VERSION}")
     if version != FORMAT_VERSION:
-        raise InputError(source, "version", f"{version!r} is not supported, expected {FORMAT_VERSION}")
+        raise InputError(source, "version", f"{_short(version)} is not supported, expected {FORMAT_VERSION}")
     meta = _meta_from_header(doc, source)
     _validate_meta(meta, source)
     return parse_records(memoryview(data)[HEADER_SIZE:], meta, source)
-
-
-def _validate_meta(meta: CaptureMeta, source: str) -> None:
-    def positive(key: str, value: Any) -> None:
-        if value is not None and not (isinstance(value, (int, float)) and not isinstance(value, bool)
-                                      and math.isfinite(value) and value > 0):
-            raise InputError(source, key, f"{value!r} must be a number greater than zero")
-    positive("sample_rate_hz", meta.sample_rate_hz)
-    positive("amps_per_code", meta.amps_per_code)
-    positive("hold_frequency_hz", meta.hold_frequency_hz)
-    positive("peak_time_s", meta.peak_time_s)
-    positive("supply_v", meta.supply_v)
-    if meta.sense_position not in (None, "coil", "switch"):
-        raise InputError(source, "sense_position", f"{meta.sense_position!r} is not 'coil' or 'switch'")
-    if meta.adc_bits is not None and not (isinstance(meta.adc_bits, int) and 1 <= meta.adc_bits <= 16):
-        raise InputError(source, "adc_bits", f"{meta.adc_bits!r} is not an integer 1..16")
-    if not isinstance(meta.zero_code, int) or not 0 <= meta.zero_code <= 0xFFFF:
-        raise InputError(source, "zero_code", f"{meta.zero_code!r} is not an integer 0..65535")
 
 
 def read_text_capture(data: bytes, source: str = "memory") -> Capture:
@@ -706,6 +846,7 @@ def read_text_capture(data: bytes, source: str = "memory") -> Capture:
         elif isinstance(m, Info):
             meta.update(meta_from_info(m))
     stats = dec.stats
+    _check_info_lines(data, source)
     if not runs:
         raise InputError(source, "", "holds no sample line (index,adc): not a capture file")
     if stats.malformed_frames > stats.frames:
@@ -721,8 +862,57 @@ def read_text_capture(data: bytes, source: str = "memory") -> Capture:
         d = (ev_index - int(raw[k])) % _U32
         d = d - _U32 if d >= _HALF else d
         events.append(CaptureEvent(int(index[k]) + d, kind, value))
-    return Capture(index, code, tuple(events), (), CaptureMeta(**meta), 0,
+    cap_meta = CaptureMeta(**meta)
+    _validate_meta(cap_meta, source, "info line")
+    if cap_meta.adc_bits is not None and code.size and int(code.max()) >= 1 << cap_meta.adc_bits:
+        k = int(np.argmax(code >= 1 << cap_meta.adc_bits))
+        raise InputError(source, f"sample index {int(raw[k])}", f"ADC code {int(code[k])} is above "
+                         f"the {cap_meta.adc_bits}-bit ADC's {(1 << cap_meta.adc_bits) - 1} that "
+                         "the info line gives")
+    # a lost or garbled line loses at most the samples of the lines it merged with
+    overrun = sum(e.value for e in events if e.kind == EventKind.OVERRUN and e.value > 0)
+    slack = JUMP_FLOOR + 2 * stats.malformed_frames + overrun
+    pause_total = sum(e.value for e in events if e.kind == EventKind.PAUSE and e.value > 0)
+    for (nruns, ev_index, _, _), e in zip(events_raw, events):
+        k = min(max(int(run_start[nruns]) - 1, 0), index.size - 1)
+        if abs(e.index - int(index[k])) > slack + pause_total:
+            raise InputError(source, f"event at sample index {ev_index}", f"{e.index - int(index[k]):+,} "
+                             f"sample indices from the samples before it (at most "
+                             f"{slack + pause_total:,}; a damaged line?)")
+    check_index_jumps(index, events, slack, source, lambda k: f"sample index {int(raw[k])}")
+    return Capture(index, code, tuple(events), (), cap_meta, 0,
                    stats.malformed_frames, restarts, stats.tail_bytes, source)
+
+
+def _check_info_lines(data: bytes, source: str) -> None:
+    """An ``info`` line the decoder skipped (a zero or unreadable rate, bits out of range)
+    is an error in a capture file: the file's own scaling would be silently replaced."""
+    from .textline import TextLineDecoder
+
+    for number, line in enumerate(data.split(b"\n"), 1):
+        if line.lstrip()[:5].lower() == b"info,":
+            if not TextLineDecoder().feed(line + b"\n"):
+                text = line.strip().decode("utf-8", errors="replace")
+                raise InputError(source, f"line {number}", f"{_short(text)} is not an info line "
+                                 "'info,RATE,BITS[,A per code[,zero code[,firmware id]]]' with "
+                                 "a rate above zero (e.g. 200000 or 84000000/420) and bits 1..16")
+
+
+def count_records(path: str | os.PathLike, chunk: int = 1 << 20) -> tuple[int, int]:
+    """``(samples, events)`` in the binary capture file ``path`` as it is on disk (whole
+    records only), read in chunks of ``chunk`` records: what a capture kept, whatever it
+    decoded."""
+    samples = events = 0
+    with open(path, "rb") as handle:
+        handle.seek(HEADER_SIZE)
+        while True:
+            data = handle.read(chunk * RECORD_SIZE)
+            whole = len(data) // RECORD_SIZE
+            if not whole:
+                return samples, events
+            kind = np.frombuffer(data, RECORD, count=whole)["kind"]
+            samples += int(np.count_nonzero(kind == RecordKind.SAMPLE))
+            events += int(np.count_nonzero(kind == RecordKind.EVENT))
 
 
 def write_capture(path: str | os.PathLike, capture: Capture) -> None:

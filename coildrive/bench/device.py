@@ -43,6 +43,9 @@ from .synth import (FAULTS, actuation_events, actuation_waveform, adc_scaling, c
 MAX_PEAK_TIME = 1.0
 #: Shortest period between automatic actuations, s.
 MIN_AUTO_PERIOD = 0.2
+#: Shortest ``period`` accepted, s (a longer actuation makes the device skip the
+#: automatic actuations that come while it is busy).
+MIN_PERIOD = 1e-3
 #: Bits on the line per byte at 8N1 (start, 8 data, stop).
 BITS_PER_BYTE = 10
 _I32_MAX = 2**31 - 1
@@ -133,6 +136,14 @@ class DeviceOptions:
             raise OptionError("baud", f"{self.baud!r} must be a whole number > 0")
         if not 1 <= self.samples_per_frame <= MAX_SAMPLES_PER_FRAME:
             raise OptionError("samples_per_frame", f"{self.samples_per_frame} is outside 1..{MAX_SAMPLES_PER_FRAME}")
+        if self.period is not None and self.period < MIN_PERIOD:
+            # each automatic actuation is a step of the device's clock: a period of 1 ns
+            # would be 10^9 steps a second, and the device would never get back to its port
+            raise OptionError("period", f"{self.period:g} s is below {MIN_PERIOD * 1e3:g} ms, the "
+                              "shortest time between automatic actuations")
+        if isinstance(self.seed, bool) or not isinstance(self.seed, int) or not 0 <= self.seed < 2**63:
+            raise OptionError("seed", f"{self.seed!r} is not a whole number 0..2^63-1 (numpy's "
+                              "random generators take no negative seed)")
         if self.hold_time > self.max_hold:
             raise OptionError("hold_time", f"{self.hold_time:g} s is above the device's hold limit of {self.max_hold:g} s")
 

@@ -43,6 +43,7 @@ import collections
 import contextlib
 import os
 import queue
+import stat
 import threading
 import time
 from dataclasses import dataclass
@@ -52,8 +53,8 @@ from typing import Any
 
 import numpy as np
 
-from ..errors import CoildriveError, InputError, unreadable
-from ..fileio import atomic_path
+from ..errors import CoildriveError, InputError, OutputError, unreadable
+from ..fileio import atomic_path, publish_new, temporary_beside
 from .capture_file import DEFAULT_FLUSH_INTERVAL, CaptureWriter
 from .messages import Command, Event, EventKind, Info, Message, Opcode, Reply, Samples
 from .protocol import FrameDecoder, FrameEncoder
@@ -381,13 +382,14 @@ class DeviceLink:
         states (``docs/protocol.md`` section 4.2): an INFO with other ``adc_bits`` rescales it.
     temperature_events : the header's ``coil_temp_c`` follows the median TEMPERATURE
         event (milli-degC), taken to be the coil's temperature.
+    overwrite : replace an existing ``capture`` (``False``: refuse, see :func:`new_capture`).
 
     Raises
     ------
     LinkError
-        when the port does not open.
+        when the port does not open, or is busy (another program has it open).
     InputError
-        when the capture file cannot be created.
+        when the capture file cannot be created, or exists and ``overwrite`` is false.
     """
 
     def __init__(self, port: Any, *, baud: int, capture: str | os.PathLike | None = None,
@@ -395,7 +397,8 @@ class DeviceLink:
                  flush_interval: float = DEFAULT_FLUSH_INTERVAL,
                  stop_after_actuations: int | None = None, read_timeout: float = READ_TIMEOUT_S,
                  release_quiet_s: float = RELEASE_QUIET_S, release_max_s: float = RELEASE_MAX_S,
-                 supply_volts_per_code: float | None = None, temperature_events: bool = False):
+                 supply_volts_per_code: float | None = None, temperature_events: bool = False,
+                 overwrite: bool = True):
         if stop_after_actuations is not None and stop_after_actuations < 1:
             raise ValueError(f"stop_after_actuations {stop_after_actuations} must be >= 1")
         self.baud = int(baud)
@@ -410,10 +413,7 @@ class DeviceLink:
         writer = None
         if capture is not None:
             try:
-                writer = CaptureWriter(capture, flush_interval=flush_interval, **meta)
-            except OSError as err:
-                self._close_port()
-                raise InputError(str(capture), "", f"cannot be written ({err.strerror or err})") from None
+                writer = new_capture(capture, overwrite, flush_interval=flush_interval, **meta)
             except BaseException:
                 self._close_port()
                 raise
@@ -445,9 +445,15 @@ class DeviceLink:
 
             name = os.fspath(port)
             try:
+                # exclusive: a second program (another capture) cannot open the port too
+                # and steal half the bytes; pyserial takes an flock on POSIX ports and
+                # ignores it where the platform has none
                 ser = serial.serial_for_url(name, baudrate=self.baud, timeout=read_timeout,
-                                            write_timeout=WRITE_TIMEOUT_S)
+                                            write_timeout=WRITE_TIMEOUT_S, exclusive=True)
             except (serial.SerialException, OSError, ValueError) as err:
+                if "exclusively lock" in str(err):
+                    raise LinkError(f"{name}: the port is busy: another program (a capture, a "
+                                    "terminal) has it open; close that first") from None
                 raise LinkError(f"{name}: cannot open the port ({_describe(err)})") from None
             return ser, True, name
         for attr in ("read", "write"):
@@ -662,24 +668,68 @@ def _opcode_name(opcode: int) -> str:
         return f"opcode {opcode}"
 
 
+# --------------------------------------------------------------------------- files
+def new_capture(path: str | os.PathLike, overwrite: bool, option: str = "--out",
+                **writer_args: Any) -> CaptureWriter:
+    """A :class:`CaptureWriter` on ``path`` that never damages a file already there.
+
+    The header is written to a temporary file beside ``path`` first, which then takes
+    the name (:func:`coildrive.fileio.publish_new`: refused when ``path`` exists unless
+    ``overwrite``); the writer goes on writing through its open handle, so a killed capture
+    keeps what it flushed. A disk too full for the header leaves no file at all.
+    """
+    tmp = temporary_beside(path)
+    try:
+        writer = CaptureWriter(tmp, **writer_args)
+    except OSError as err:
+        with contextlib.suppress(OSError):
+            os.unlink(tmp)
+        raise OutputError(str(path), f"cannot be written ({err.strerror or err})") from None
+    try:
+        publish_new(tmp, path, overwrite=overwrite, option=option)
+    except BaseException:
+        writer.close()
+        with contextlib.suppress(OSError):
+            os.unlink(tmp)
+        raise
+    writer.path = Path(path)
+    return writer
+
+
+class NoFrames(InputError):
+    """A replay decoded no frame (or text line): nothing was written. ``stats`` says what
+    was read."""
+
+    def __init__(self, source: str, message: str, stats: "LinkStats"):
+        super().__init__(source, "", message)
+        self.stats = stats
+
+
 # --------------------------------------------------------------------------- replay
 def replay(raw_path: str | os.PathLike, out: str | os.PathLike, *, text: bool = False,
            meta: dict | None = None, stop_after_actuations: int | None = None,
            supply_volts_per_code: float | None = None, temperature_events: bool = False,
-           chunk: int = 1 << 20) -> LinkStats:
+           chunk: int = 1 << 20, overwrite: bool = True, require_frames: bool = False) -> LinkStats:
     """Decode a file of raw link bytes (binary frames, or text lines with ``text``) into
     the capture file ``out``, as a live capture would have written it (keyword
     arguments as for :class:`DeviceLink`).
 
-    ``out`` appears complete or not at all (written to a temporary file, then renamed).
+    ``out`` appears complete or not at all (written to a temporary file, then renamed);
+    an existing ``out`` is replaced only with ``overwrite``, and with ``require_frames``
+    only when at least one frame (text line) was decoded.
 
     Raises
     ------
     InputError
-        ``raw_path`` cannot be read, or ``out`` cannot be written.
+        ``raw_path`` cannot be read, ``out`` exists (without ``overwrite``), or
+        :class:`NoFrames` (with ``require_frames``).
+    OutputError
+        ``out`` cannot be written (a full disk): an old ``out`` is left as it was.
     """
     source = str(raw_path)
     try:
+        if not stat.S_ISREG(os.stat(raw_path).st_mode):
+            raise InputError(source, "", "is not a regular file, expected a file of raw link bytes")
         handle = open(raw_path, "rb")
     except OSError as err:
         raise unreadable(source, err, "a file of raw link bytes") from None
@@ -688,24 +738,32 @@ def replay(raw_path: str | os.PathLike, out: str | os.PathLike, *, text: bool = 
     meta.setdefault("extra", {})
     meta["extra"] = {**meta["extra"], "replay": os.path.basename(source)}
     t0 = time.monotonic()
-    with handle:
-        with contextlib.ExitStack() as stack:
-            try:
-                tmp = stack.enter_context(atomic_path(out))
-            except OSError as err:
-                raise InputError(str(out), "", f"cannot be written ({err.strerror})") from None
+
+    def stats() -> LinkStats:
+        st = pipe.dstats
+        elapsed = max(time.monotonic() - t0, 1e-9)
+        return LinkStats(elapsed, st.bytes, st.bytes / elapsed, st.frames, pipe.samples,
+                         st.crc_errors, st.malformed_frames, st.lost_frames, st.samples_missing,
+                         pipe.actuations, None, pipe.complete, pipe.done)
+    with handle, atomic_path(out, overwrite=overwrite) as tmp:
+        try:
             with CaptureWriter(tmp, flush_interval=None, **meta) as writer:
                 pipe = _Pipeline(writer, text, meta.get("sample_rate_hz"), stop_after_actuations,
                                  RELEASE_QUIET_S, RELEASE_MAX_S, supply_volts_per_code,
                                  temperature_events, meta.get("adc_bits"))
                 while not pipe.done:
-                    data = handle.read(chunk)
+                    try:
+                        data = handle.read(chunk)
+                    except OSError as err:
+                        raise unreadable(source, err, "a file of raw link bytes") from None
                     if not data:
                         pipe.finish(lambda m: None)
                         break
                     pipe.feed(data, lambda m: None)
-    st = pipe.dstats
-    elapsed = max(time.monotonic() - t0, 1e-9)
-    return LinkStats(elapsed, st.bytes, st.bytes / elapsed, st.frames, pipe.samples, st.crc_errors,
-                     st.malformed_frames, st.lost_frames, st.samples_missing, pipe.actuations, None,
-                     pipe.complete, pipe.done)
+        except OSError as err:   # the capture's own writes: a full disk
+            raise OutputError(str(out), f"cannot be written ({err.strerror or err})") from None
+        if require_frames and pipe.dstats.frames == 0:
+            what = "text line" if text else "frame"
+            raise NoFrames(source, f"no valid {what} in {pipe.dstats.bytes:,} bytes; "
+                           f"{out} not written", stats())
+    return stats()

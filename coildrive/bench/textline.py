@@ -213,7 +213,10 @@ def _rate(text: bytes) -> tuple[int, int] | None:
     text = text.strip()
     if not re.fullmatch(rb"[0-9]{1,10}(/[0-9]{1,10}|\.[0-9]{1,9})?", text):
         return None
-    rate = Fraction(text.decode("ascii"))
+    try:
+        rate = Fraction(text.decode("ascii"))
+    except ZeroDivisionError:   # "1/0"
+        return None
     if rate <= 0:
         return None
     if rate.numerator > _U32_MAX or rate.denominator > _U32_MAX:

@@ -5,6 +5,9 @@ Exit codes: 0 success, 1 a check failed, 2 bad input (one line on stderr).
 
 from __future__ import annotations
 
+import json
+import sys
+
 import typer
 
 from .. import __version__
@@ -45,6 +48,40 @@ app.command("emulate")(emulate_cmd.emulate_command)
 app.command("capture")(capture_cmd.capture_command)
 
 
+def _files_checked_by_the_commands(typer_app: typer.Typer) -> None:
+    """Switch off typer's own readable-path check on every command's path parameters:
+    the commands read their files themselves and say what is wrong in one line
+    (``file: cannot be read (Permission denied)``), where typer's check prints a usage box."""
+    import inspect
+
+    for info in typer_app.registered_commands:
+        for param in inspect.signature(info.callback).parameters.values():
+            if hasattr(param.default, "readable"):
+                param.default.readable = False
+
+
+_files_checked_by_the_commands(app)
+
+
 def main() -> None:
-    """Console-script entry point."""
-    app()
+    """Console-script entry point.
+
+    With ``--json``, a usage error (an unknown option, a missing argument) also prints
+    the one error document on stdout, like every other failure (see
+    :func:`coildrive.cli.common.user_errors`).
+    """
+    if "--json" not in sys.argv[1:]:
+        app()
+        return
+    try:
+        code = app(standalone_mode=False)
+    except typer.TyperException as err:   # click's usage errors
+        typer.echo(json.dumps({"error": err.format_message(), "exit_code": err.exit_code}))
+        if hasattr(err, "show"):
+            err.show()
+        else:
+            typer.echo(f"coildrive: {err.format_message()}", err=True)
+        code = err.exit_code
+    except typer.Abort:   # Ctrl-C at a prompt
+        code = 130
+    sys.exit(code if isinstance(code, int) else 0)

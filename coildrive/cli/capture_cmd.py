@@ -14,8 +14,8 @@ from typing import Optional
 
 import typer
 
-from ..errors import InputError
-from ..fileio import write_atomic
+from ..errors import CoildriveError, InputError, OutputError
+from ..fileio import atomic_path
 from ..units import parse_quantity
 from .common import status, user_errors
 
@@ -83,7 +83,9 @@ def _header_meta(brd, drv, drive_path: Optional[Path], port: Optional[str], baud
     return meta
 
 
-def _check_out(out: Optional[Path], option: str = "--out") -> Path:
+def _check_out(out: Optional[Path], option: str = "--out", overwrite: bool = False) -> Path:
+    from ..fileio import exists_error
+
     if out is None:
         raise InputError(option, "", "missing: give the capture file to write, e.g. --out run.cdcap")
     folder = out.parent if str(out.parent) else Path(".")
@@ -91,6 +93,8 @@ def _check_out(out: Optional[Path], option: str = "--out") -> Path:
         raise InputError(option, "", f"folder {str(folder)!r} does not exist")
     if out.is_dir():
         raise InputError(option, "", f"{str(out)!r} is a folder, expected a file name")
+    if out.exists() and not overwrite:
+        raise exists_error(out, option)
     return out
 
 
@@ -124,16 +128,20 @@ def _progress_text(st, target: str):
                 f"actuations {st.complete_actuations}")
 
 
-def _export_csv(out: Path, csv: Optional[Path]) -> str:
+def _export_csv(out: Path, csv: Optional[Path], overwrite: bool) -> str:
+    """Write the capture ``out`` as CSV; the text to add to the summary line. Raises a
+    one-line error (after the capture's own line was printed, so that it hides nothing)."""
     if csv is None:
         return ""
     from ..bench.capture_file import read_capture
 
-    try:
-        write_atomic(csv, read_capture(out).to_csv())
-    except OSError as err:
-        raise InputError(str(csv), "", f"cannot be written ({err.strerror})") from None
-    return f", CSV {csv}"
+    with atomic_path(csv, overwrite=overwrite, option="--csv") as tmp:
+        try:
+            with open(tmp, "w", encoding="utf-8") as handle:
+                handle.write(read_capture(out).to_csv())
+        except OSError as err:
+            raise OutputError(str(csv), f"cannot be written ({err.strerror or err})") from None
+    return f"CSV {csv}"
 
 
 @user_errors
@@ -151,6 +159,7 @@ def capture_command(
     supply: Optional[str] = typer.Option(None, "--supply", help='Bus voltage during the capture, e.g. 24 or "24 V", for the header (default: the device\'s SUPPLY readings through the board\'s divider).'),
     coil_temp: Optional[str] = typer.Option(None, "--coil-temp", help='Coil temperature during the capture, e.g. 25 or "25 degC", for the header (default: the device\'s TEMPERATURE events).'),
     hint_after: Optional[str] = typer.Option(None, "--hint-after", help="s without a valid frame before the baud-rate / mode hint (default 3)."),
+    overwrite: bool = typer.Option(False, "--overwrite", help="Replace an existing --out (and --csv) file; without it an existing file is never touched."),
 ) -> None:
     """Capture coil current from a board over the bench link into a capture file."""
     import signal      # here, not at the top: CLI start-up time
@@ -163,7 +172,7 @@ def capture_command(
     seconds = _seconds(duration, "--duration")
     rate = _positive_int(baud, "--baud", "a baud rate (a whole number >= 1)")
     wait_hint = _seconds(hint_after, "--hint-after") or NO_FRAME_HINT_S
-    target = _check_out(out)
+    target = _check_out(out, overwrite=overwrite)
     if replay is not None and port is not None:
         raise InputError("--replay", "", f"reads a file; give no PORT ({port!r}) with it")
     if replay is None and port is None:
@@ -171,7 +180,7 @@ def capture_command(
     if replay is not None and seconds is not None:
         raise InputError("--duration", "", "applies to a live capture, not to --replay (use --actuations)")
     if csv is not None:
-        _check_out(csv, "--csv")
+        _check_out(csv, "--csv", overwrite)
     v = parse_quantity(supply, "voltage", "--supply") if supply is not None else None
     if v is not None and not v > 0:
         raise InputError("--supply", "", f"{supply!r} must be a voltage above zero")
@@ -183,25 +192,8 @@ def capture_command(
              "temperature_events": temp is None}
 
     if replay is not None:
-        meta = _header_meta(brd, drv, drive, None, None, v, temp)
-        st = replay_raw(replay, target, text=text, meta=meta, stop_after_actuations=n_act, **point)
-        if st.frames == 0:
-            from ..bench.link import guess_mode
-            try:
-                head = replay.read_bytes()[:4096]
-            except OSError:
-                head = b""
-            guess = guess_mode(head)
-            advice = ("they look like text lines: use --text" if guess == "text" and not text else
-                      "they look like binary frames: use --binary" if guess == "frames" and text else
-                      "is it raw link bytes of this mode?")
-            status(f"hint: {st.bytes} bytes in {replay} but no valid {'text line' if text else 'frame'}: {advice}")
-        extra = _export_csv(target, csv)
-        partial = st.actuations - st.complete_actuations
-        acts = f"{st.complete_actuations} actuation(s)" + (f" (+{partial} partial)" if partial > 0 else "")
-        status(f"replayed {replay}: {st.bytes:,} bytes, {st.samples:,} samples in {st.frames:,} frames, "
-               f"{acts}, {st.crc_errors} CRC error(s), {st.malformed} malformed, "
-               f"{st.lost_frames} lost frame(s) -> {target}{extra}")
+        _replay(replay, target, csv, text, overwrite, _header_meta(brd, drv, drive, None, None, v, temp),
+                n_act, point)
         return
 
     line_rate = rate if rate is not None else brd.link.baud
@@ -216,7 +208,7 @@ def capture_command(
     old = {s: signal.signal(s, on_signal) for s in (signal.SIGINT, signal.SIGTERM)}
     try:
         link = DeviceLink(port, baud=line_rate, capture=target, meta=meta, text=text,
-                          stop_after_actuations=n_act, **point)
+                          stop_after_actuations=n_act, overwrite=overwrite, **point)
     except BaseException:
         for s, handler in old.items():
             signal.signal(s, handler)
@@ -256,11 +248,78 @@ def capture_command(
         for s, handler in old.items():
             signal.signal(s, handler)
     st = link.stats()
-    extra = _export_csv(target, csv)
+    on_disk = _samples_on_disk(target)
+    csv_note, csv_error = _csv_after(target, csv, overwrite)
     if st.error is not None:
         status(f"coildrive: capture: {port}: {st.error} after {st.elapsed_s:.1f} s; kept "
-               f"{st.samples:,} samples, {st.complete_actuations} actuation(s) in {target}{extra}")
+               f"{on_disk} in {target}{csv_note}")
+        _report_csv_error(csv_error)
         raise typer.Exit(1)
     why = (f"stopped by {caught[0]}" if caught else
            f"stopped after {st.complete_actuations} actuation(s)" if st.done else "duration reached")
-    status(f"captured {st.summary()} ({why}) -> {target}{extra}")
+    status(f"captured {st.summary()} ({why}) -> {target}: {on_disk} on disk{csv_note}")
+    _report_csv_error(csv_error, exit_now=True)
+
+
+def _samples_on_disk(target: Path) -> str:
+    """What the capture file holds, counted from the file (not from what was decoded: a
+    full disk or a failed flush keeps less)."""
+    from ..bench.capture_file import count_records
+
+    try:
+        samples, events = count_records(target)
+    except OSError as err:
+        return f"nothing readable ({err.strerror or err})"
+    return f"{samples:,} samples, {events:,} events"
+
+
+def _csv_after(target: Path, csv: Optional[Path], overwrite: bool) -> tuple[str, str | None]:
+    """The --csv export: ``(", CSV path"`` for the summary line, ``None)``, or ``("",
+    the one error line)``, printed after the capture's own line so that it hides nothing."""
+    if csv is None:
+        return "", None
+    try:
+        return f", {_export_csv(target, csv, overwrite)}", None
+    except CoildriveError as err:
+        return "", f"coildrive: {err}"
+
+
+def _report_csv_error(line: str | None, exit_now: bool = False) -> None:
+    if line is not None:
+        status(line)
+        if exit_now:
+            raise typer.Exit(2)
+
+
+def _replay(replay: Path, target: Path, csv: Optional[Path], text: bool, overwrite: bool,
+            meta: dict, n_act: int | None, point: dict) -> None:
+    """``capture --replay``: decode a file of raw link bytes into ``target``.
+
+    SIGTERM and SIGHUP end it like Ctrl-C: the temporary file is removed and ``target``
+    is as it was. A stream with no valid frame writes nothing (an existing file is kept)
+    and exits 2 with a hint at the mode."""
+    from ..bench.link import NoFrames, guess_mode, replay as replay_raw
+    from ..fileio import exit_on_signals
+
+    try:
+        with exit_on_signals():
+            st = replay_raw(replay, target, text=text, meta=meta, stop_after_actuations=n_act,
+                            overwrite=overwrite, require_frames=True, **point)
+    except NoFrames as err:
+        try:
+            with open(replay, "rb") as handle:
+                head = handle.read(4096)
+        except OSError:
+            head = b""
+        guess = guess_mode(head)
+        advice = ("they look like text lines: use --text" if guess == "text" and not text else
+                  "they look like binary frames: use --binary" if guess == "frames" and text else
+                  "is it raw link bytes of this mode?")
+        raise InputError(str(replay), "", f"{err.message}: {advice}") from None
+    note, error = _csv_after(target, csv, overwrite)
+    partial = st.actuations - st.complete_actuations
+    acts = f"{st.complete_actuations} actuation(s)" + (f" (+{partial} partial)" if partial > 0 else "")
+    status(f"replayed {replay}: {st.bytes:,} bytes, {st.samples:,} samples in {st.frames:,} frames, "
+           f"{acts}, {st.crc_errors} CRC error(s), {st.malformed} malformed, "
+           f"{st.lost_frames} lost frame(s) -> {target}{note}")
+    _report_csv_error(error, exit_now=True)

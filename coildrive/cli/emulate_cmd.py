@@ -22,7 +22,8 @@ _FAULTS = {"open": "open", "shorted-turns": "shorted_turns", "stuck": "stuck"}
 _OPTION = {"supply": "--supply", "coil_temp": "--coil-temp", "period": "--period",
            "hold_time": "--hold-time", "resistance_scale": "--resistance-scale",
            "inductance_scale": "--inductance-scale", "fault": "--fault", "noise_codes": "--noise",
-           "drop_bytes": "--drop-bytes", "corrupt_bytes": "--corrupt-bytes", "baud": "--baud"}
+           "drop_bytes": "--drop-bytes", "corrupt_bytes": "--corrupt-bytes", "baud": "--baud",
+           "seed": "--seed"}
 
 
 def _quantity(text: Optional[str], dimension: str, option: str) -> float | None:
@@ -76,7 +77,11 @@ def emulate_command(
     try:
         device = VirtualDevice(d.drive, options, design=d)
     except ValueError as err:
-        key = "hold.mode" if "voltage-mode" in str(err) else "pull_in.current"
+        # the two designs the virtual device cannot run; anything else is not the file's
+        key = ("hold.mode" if "voltage-mode" in str(err) else
+               "pull_in.current" if "peak phase" in str(err) else None)
+        if key is None:
+            raise
         raise InputError(str(drive), key, str(err)) from None
 
     with Emulator(device) as emulator:
