@@ -49,3 +49,14 @@ def run_cli(*args: str, cwd: Path | None = None, input: str | None = None,
 @pytest.fixture
 def demo_drive() -> Path:
     return EXAMPLES / "demo-valve.toml"
+
+
+def json_error(stdout: str, stderr: str, code: int = 2) -> dict:
+    """With ``--json`` an error is still one JSON document on stdout: ``{"error": the one
+    line of stderr without its "coildrive: " prefix, "exit_code": code}``."""
+    import json
+
+    doc = json.loads(stdout)
+    line = stderr.strip().splitlines()[-1]
+    assert doc == {"error": line.removeprefix("coildrive: "), "exit_code": code}, (doc, line)
+    return doc

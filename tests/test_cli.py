@@ -7,7 +7,7 @@ import re
 
 import pytest
 
-from conftest import EXAMPLES, run_cli
+from conftest import EXAMPLES, json_error, run_cli
 
 DEMO_TEXT = (EXAMPLES / "demo-valve.toml").read_text()
 
@@ -145,7 +145,7 @@ def test_bad_input_one_line_exit_2_nothing_written(tmp_path, old, new, fragment)
     assert "Traceback" not in r.stderr
     assert lines[0].startswith(f"coildrive: {drive}: ") or "board" in fragment, lines[0]
     assert fragment in lines[0], lines[0]
-    assert r.stdout == "", "nothing on stdout"
+    json_error(r.stdout, r.stderr)  # stdout: the error as one JSON document, nothing else
     assert not header.exists(), "no file written"
 
 

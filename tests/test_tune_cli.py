@@ -13,7 +13,7 @@ import subprocess
 
 import pytest
 
-from conftest import EXAMPLES, require_tool, run_cli
+from conftest import EXAMPLES, json_error, require_tool, run_cli
 
 DEMO = EXAMPLES / "demo-valve.toml"
 NARROW = ["--min-frequency", "30 kHz", "--max-frequency", "34 kHz", "--levels", "3"]
@@ -122,7 +122,7 @@ def test_bad_options_one_line_exit_2(tmp_path, args, fragment):
     lines = r.stderr.strip().splitlines()
     assert len(lines) == 1 and "Traceback" not in r.stderr, r.stderr
     assert fragment in lines[0], lines[0]
-    assert r.stdout == ""
+    json_error(r.stdout, r.stderr)
     assert not (tmp_path / "x.h").exists()
 
 
