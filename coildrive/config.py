@@ -36,11 +36,29 @@ DISTRIBUTIONS = ("uniform", "normal")
 #: practice: power resistors, diodes and switches are run at about half their rating,
 #: which leaves room for a hot enclosure and for the rating's own test conditions).
 POWER_DERATING = 0.5
+#: Default fraction of a part's single-pulse energy rating that one turn-off may use
+#: (common practice, as for the power: half the rating, for the hot part and the
+#: rating's own pulse shape).
+ENERGY_DERATING = 0.5
+#: Default factor by which the shortest real peak must carry the current above
+#: ``pull_in.current`` (common practice: the magnetic force grows with the square of the
+#: current, so 1.1 x the current is about 1.2 x the force).
+PULL_IN_CURRENT_MARGIN = 1.1
+#: What the firmware does in a voltage-mode hold (``[hold] regulation``): one fixed
+#: compare, or the compare looked up against the measured supply (``current`` is what
+#: a current-mode hold reports).
+REGULATIONS = ("fixed", "supply_table")
+#: Tolerance keys of the freewheel elements (fractions, 0 = exact).
+_FREEWHEEL_TOLERANCES = ("diode_drop_tolerance", "zener_voltage_tolerance", "clamp_voltage_tolerance")
+#: Single-pulse energy ratings of the freewheel elements (J, 0 = not given).
+_ENERGY_RATINGS = ("diode_energy_rating", "zener_energy_rating", "resistor_energy_rating",
+                   "clamp_energy_rating")
 #: Freewheel keys of split decay (only with ``split_decay = true``).
 _BYPASS_KEYS = ("bypass_resistance", "bypass_lead", "bypass_power_rating")
 _FREEWHEEL_LATER = ("split_decay", "bypass_resistance", "bypass_lead", "diode_power_rating",
                     "zener_power_rating", "resistor_power_rating", "clamp_power_rating",
-                    "bypass_power_rating", "power_derating")
+                    "bypass_power_rating", "power_derating", *_FREEWHEEL_TOLERANCES,
+                    *_ENERGY_RATINGS, "energy_derating")
 
 
 # --------------------------------------------------------------------------- bounds
@@ -64,6 +82,8 @@ BOUNDS: dict[str, tuple[float, float, str]] = {
     "thermal.max_coil_temp": (-50.0, 250.0, "temperature"),
     "pull_in.current": (1e-6, 1000.0, "current"),
     "pull_in.margin": (1.0, 10.0, "dimensionless"),
+    "pull_in.current_margin": (1.0, 3.0, "dimensionless"),
+    "pull_in.settle_time": (0.0, 10.0, "time"),
     "hold.current": (1e-6, 1000.0, "current"),
     "hold.frequency": (1.0, 5e6, "frequency"),
     "hold.band": (1e-6, 1000.0, "current"),
@@ -87,7 +107,10 @@ BOUNDS: dict[str, tuple[float, float, str]] = {
     "adc.sample_rate": (1.0, 10e6, "frequency"),
     "sense.resistance": (10e-6, 1e3, "resistance"),
     "sense.gain": (1e-3, 10e3, "dimensionless"),
+    "sense.resistance_tolerance": (0.0, 0.5, "dimensionless"),
+    "sense.gain_tolerance": (0.0, 0.5, "dimensionless"),
     "supply_sense.divider": (1.0, 1000.0, "dimensionless"),
+    "supply_sense.divider_tolerance": (0.0, 0.5, "dimensionless"),
     "switch.on_resistance": (0.0, 1e3, "resistance"),
     "switch.max_voltage": (1.0, 10e3, "voltage"),
     "switch.rise_time": (1e-12, 1e-3, "time"),
@@ -104,6 +127,13 @@ BOUNDS: dict[str, tuple[float, float, str]] = {
     "freewheel.resistor_power_rating": (1e-3, 10e3, "power"),
     "freewheel.clamp_power_rating": (1e-3, 10e3, "power"),
     "freewheel.bypass_power_rating": (1e-3, 10e3, "power"),
+    "freewheel.diode_drop_tolerance": (0.0, 0.5, "dimensionless"),
+    "freewheel.zener_voltage_tolerance": (0.0, 0.5, "dimensionless"),
+    "freewheel.clamp_voltage_tolerance": (0.0, 0.5, "dimensionless"),
+    "freewheel.diode_energy_rating": (1e-6, 1e6, "energy"),
+    "freewheel.zener_energy_rating": (1e-6, 1e6, "energy"),
+    "freewheel.resistor_energy_rating": (1e-6, 1e6, "energy"),
+    "freewheel.clamp_energy_rating": (1e-6, 1e6, "energy"),
     "tick.rate": (1.0, 10e6, "frequency"),
 }
 #: Keys whose 0 (their default) means "not given" and is accepted beside the range.
@@ -112,7 +142,9 @@ _ZERO_MEANS_UNSET = frozenset((
     "switch.rise_time", "switch.fall_time", "switch.power_rating", "freewheel.zener_voltage",
     "freewheel.resistance", "freewheel.clamp_voltage", "freewheel.diode_power_rating",
     "freewheel.zener_power_rating", "freewheel.resistor_power_rating",
-    "freewheel.clamp_power_rating", "freewheel.bypass_power_rating"))
+    "freewheel.clamp_power_rating", "freewheel.bypass_power_rating",
+    "freewheel.diode_energy_rating", "freewheel.zener_energy_rating",
+    "freewheel.resistor_energy_rating", "freewheel.clamp_energy_rating"))
 
 
 def _in_bounds(value: float, name: str) -> bool:
@@ -181,10 +213,21 @@ class Thermal:
 
 @dataclass(frozen=True)
 class PullIn:
-    """Current in A that pulls the armature in; ``margin`` multiplies the worst pull-in time."""
+    """Current in A that pulls the armature in, and how the peak is sized from it.
+
+    ``margin`` multiplies the worst pull-in time; ``current_margin`` is the factor by
+    which the shortest real peak must carry the current above ``current`` at the hot,
+    low-supply corner (the force grows with the square of the current), and
+    ``settle_time`` (s) the time the armature needs after that. The peak is the longest
+    any of them asks for. ``compensate``: the peak is looked up against the measured
+    supply (a peak table, like the hold's duty table).
+    """
 
     current: float
     margin: float
+    current_margin: float = PULL_IN_CURRENT_MARGIN
+    settle_time: float = 0.0
+    compensate: bool = False
 
 
 @dataclass(frozen=True)
@@ -216,6 +259,7 @@ class Hold:
     min_frequency: float = 20_000.0
     max_frequency: float = 0.0
     sense_delay: float = 0.0
+    regulation: str = "supply_table"
 
 
 @dataclass(frozen=True)
@@ -288,13 +332,17 @@ class Sense:
     resistance: float
     gain: float
     position: str
+    resistance_tolerance: float = 0.0
+    gain_tolerance: float = 0.0
 
 
 @dataclass(frozen=True)
 class SupplySense:
-    """Bus-voltage divider ratio: bus voltage / voltage at the ADC pin (>= 1)."""
+    """Bus-voltage divider ratio: bus voltage / voltage at the ADC pin (>= 1), and its
+    tolerance (a fraction: the ratio may be off by that much either way)."""
 
     divider: float
+    divider_tolerance: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -336,7 +384,10 @@ class Freewheel:
 
     Power ratings (W, 0 = not given) of each element as mounted, checked against the
     hold's average power times ``power_derating`` (default :data:`POWER_DERATING`,
-    common practice).
+    common practice). Single-pulse energy ratings (J, 0 = not given), checked against the
+    worst turn-off's energy times ``energy_derating`` (default :data:`ENERGY_DERATING`).
+    Tolerances (fractions, 0 = exact) of the diode drop, Zener and clamp voltages: the
+    design's envelope spans both ends.
     """
 
     type: str
@@ -353,6 +404,14 @@ class Freewheel:
     clamp_power_rating: float = 0.0
     bypass_power_rating: float = 0.0
     power_derating: float = POWER_DERATING
+    diode_drop_tolerance: float = 0.0
+    zener_voltage_tolerance: float = 0.0
+    clamp_voltage_tolerance: float = 0.0
+    diode_energy_rating: float = 0.0
+    zener_energy_rating: float = 0.0
+    resistor_energy_rating: float = 0.0
+    clamp_energy_rating: float = 0.0
+    energy_derating: float = ENERGY_DERATING
 
 
 @dataclass(frozen=True)
@@ -378,7 +437,7 @@ class Board:
     timer: Timer
     adc: Adc
     sense: Sense
-    supply_sense: SupplySense
+    supply_sense: SupplySense | None
     switch: Switch
     freewheel: Freewheel
     link: Link
@@ -426,7 +485,10 @@ class Drive:
 #: Keys added after the first release: left out of the input hash while they hold their
 #: default, so that files which do not use them keep their hash (and headers their bytes).
 _LATER_FIELDS = (
-    (("hold",), Hold, _CURRENT_MODE_KEYS),
+    (("hold",), Hold, _CURRENT_MODE_KEYS + ("regulation",)),
+    (("pull_in",), PullIn, ("current_margin", "settle_time", "compensate")),
+    (("board", "sense"), Sense, ("resistance_tolerance", "gain_tolerance")),
+    (("board", "supply_sense"), SupplySense, ("divider_tolerance",)),
     (("switch",), Switch, ("rise_time", "fall_time", "power_rating", "power_derating")),
     (("board", "switch"), Switch, ("rise_time", "fall_time", "power_rating", "power_derating")),
     (("freewheel",), Freewheel, _FREEWHEEL_LATER),
@@ -440,7 +502,9 @@ def _drop_later_defaults(data: dict) -> None:
     for path, cls, names in _LATER_FIELDS:
         node = data
         for part in path:
-            node = node[part]
+            node = node[part] if node is not None else None
+        if node is None:  # an optional section the file leaves out
+            continue
         defaults = {f.name: f.default for f in dataclasses.fields(cls)}
         for name in names:
             if name in node and node[name] == defaults[name]:
@@ -641,20 +705,28 @@ def _read_freewheel(sec: _Section) -> Freewheel:
     ratings = {key: sec.quantity(key, "power", 0.0, nonnegative=True) for key in
                ("diode_power_rating", "zener_power_rating", "resistor_power_rating",
                 "clamp_power_rating", "bypass_power_rating")}
+    ratings.update({key: sec.quantity(key, "energy", 0.0, nonnegative=True) for key in _ENERGY_RATINGS})
+    tolerances = {key: sec.fraction(key, 0.0) for key in _FREEWHEEL_TOLERANCES}
     fw = Freewheel(kind, diode, zener, resistance, clamp, split_decay=split,
                    bypass_resistance=sec.quantity("bypass_resistance", "resistance", 0.0,
                                                   nonnegative=True),
                    bypass_lead=sec.quantity("bypass_lead", "time", 0.0),
-                   power_derating=_power_derating(sec), **ratings)
+                   power_derating=_power_derating(sec),
+                   energy_derating=_derating(sec, "energy_derating", ENERGY_DERATING, "energy"),
+                   **ratings, **tolerances)
     sec.finish()
     return fw
 
 
 def _power_derating(sec: _Section) -> float:
-    value = sec.quantity("power_derating", "dimensionless", POWER_DERATING)
+    return _derating(sec, "power_derating", POWER_DERATING, "power")
+
+
+def _derating(sec: _Section, key: str, default: float, what: str) -> float:
+    value = sec.quantity(key, "dimensionless", default)
     if not 0 < value <= 1:
-        raise sec.fail("power_derating", f"{value:g} must be in (0, 1], e.g. {POWER_DERATING:g} "
-                       "(the fraction of the rated power the hold may use)")
+        raise sec.fail(key, f"{value:g} must be in (0, 1], e.g. {default:g} "
+                       f"(the fraction of the rated {what} a part may take)")
     return value
 
 
@@ -696,6 +768,29 @@ def _mechanics_currents(arm: Armature, coil: Coil) -> dict[str, float]:
     return {"pull_in": arm.current_margin * float(through),
             "hold": arm.current_margin * float(magnet.stay_current(low, beta, *mech)),
             "release": float(magnet.stay_current(lc, beta, *mech))}
+
+
+def _read_regulation(s: _Section, hold: Hold) -> Hold:
+    """``[hold] regulation``: what the firmware does in a voltage-mode hold (a current-mode
+    hold regulates the current itself and reports ``"current"``)."""
+    if hold.mode == "current":
+        if "regulation" in s.table and s.table["regulation"] != "current":
+            raise s.fail("regulation", "a current-mode hold regulates the current itself; leave "
+                         "regulation out (or \"current\") with mode = \"current\"")
+        s.used.add("regulation")
+        return dataclasses.replace(hold, regulation="current")
+    return dataclasses.replace(hold, regulation=s.choice("regulation", REGULATIONS, "supply_table"))
+
+
+def _check_regulation(s: _Section, hold: Hold, board: Board) -> Hold:
+    """Without supply sensing the firmware cannot look the duty up: the default is then
+    ``"fixed"``, and ``"supply_table"`` is an error naming the key."""
+    if board.supply_sense is not None or hold.regulation != "supply_table":
+        return hold
+    if "regulation" in s.table:
+        raise s.fail("regulation", f"\"supply_table\" needs the supply measured, but board "
+                     f"{board.name!r} has no [supply_sense]; use \"fixed\" or add the divider")
+    return dataclasses.replace(hold, regulation="fixed")
 
 
 def _read_current_mode(s: _Section, hold: Hold) -> Hold:
@@ -750,10 +845,14 @@ def load_board(path: str | Path) -> Board:
     s = _section(source, data, "sense")
     sense = Sense(s.quantity("resistance", "resistance", positive=True),
                   s.quantity("gain", "dimensionless", 1.0, positive=True),
-                  s.choice("position", SENSE_POSITIONS))
+                  s.choice("position", SENSE_POSITIONS),
+                  s.fraction("resistance_tolerance", 0.0), s.fraction("gain_tolerance", 0.0))
     s.finish()
-    s = _section(source, data, "supply_sense")
-    supply_sense = SupplySense(s.quantity("divider", "dimensionless"))
+    supply_sense = None  # a board without [supply_sense] cannot measure its supply
+    if "supply_sense" in data:
+        s = _section(source, data, "supply_sense")
+        supply_sense = SupplySense(s.quantity("divider", "dimensionless"),
+                                   s.fraction("divider_tolerance", 0.0))
     s.finish()
     switch = _read_switch(_section(source, data, "switch"))
     freewheel = _read_freewheel(_section(source, data, "freewheel"))
@@ -885,7 +984,16 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
     optional = armature is not None
     s = _section(source, data, "pull_in", required=not optional)
     pull_in = PullIn(current(s, "current", None if need is None else need["pull_in"]),
-                     s.quantity("margin", "dimensionless", 1.5))
+                     s.quantity("margin", "dimensionless", 1.5),
+                     # with [armature] the seat time comes from the force balance itself and
+                     # pull_in.current carries armature.current_margin: no second margin by default
+                     s.quantity("current_margin", "dimensionless",
+                                1.0 if armature is not None else PULL_IN_CURRENT_MARGIN),
+                     s.quantity("settle_time", "time", 0.0, nonnegative=True),
+                     s.boolean("compensate", False))
+    if pull_in.compensate and brd.supply_sense is None:
+        raise s.fail("compensate", f"a supply-compensated peak needs the supply measured, but board "
+                     f"{brd.name!r} has no [supply_sense]")
     s.finish()
     s = _section(source, data, "hold")
     hold = Hold(current(s, "current", None if need is None else need["hold"]),
@@ -893,6 +1001,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
                 s.choice("mode", HOLD_MODES, "voltage"),
                 s.fraction("frequency_tolerance", 0.01))
     hold = _read_current_mode(s, hold)
+    hold = _check_regulation(s, _read_regulation(s, hold), brd)
     if hold.current >= pull_in.current:
         what = " (derived from the mechanics)" if "hold.current" in derived else ""
         raise s.fail("current", f"{hold.current:g} A{what} is not below pull_in.current "

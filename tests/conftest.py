@@ -60,3 +60,9 @@ def json_error(stdout: str, stderr: str, code: int = 2) -> dict:
     line = stderr.strip().splitlines()[-1]
     assert doc == {"error": line.removeprefix("coildrive: "), "exit_code": code}, (doc, line)
     return doc
+
+
+def drive_path(name: str):
+    """A drive file by name: tests/data/NAME.toml (test fixtures) or examples/NAME.toml."""
+    data = ROOT / "tests" / "data" / f"{name}.toml"
+    return data if data.exists() else EXAMPLES / f"{name}.toml"

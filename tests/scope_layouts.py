@@ -17,6 +17,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from coildrive.bench.synth import _switch_state, actuation_waveform, operating_point
+from coildrive.design import firmware_setting
 
 
 @dataclass
@@ -44,7 +45,8 @@ def scope_record(design, *, rate: float = 500e3, actuations: int = 2, hold_time:
     ``duration`` (s) cuts the record there (a scope's record ends where it ends)."""
     drive = design.drive
     v, temp = operating_point(drive, supply, coil_temp)
-    w = actuation_waveform(drive, v, temp, design.pull_in.peak_time_s, design.hold.duty,
+    duty, peak = firmware_setting(design, v)  # what the firmware runs at this supply
+    w = actuation_waveform(drive, v, temp, peak, duty,
                            design.hold.frequency_hz, hold_time, resistance_scale=resistance_scale,
                            inductance_scale=inductance_scale)
     length = float(w.events["zero"])

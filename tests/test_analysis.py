@@ -21,12 +21,13 @@ import math
 import numpy as np
 import pytest
 
-from conftest import BOARDS, EXAMPLES
+from conftest import BOARDS, EXAMPLES, drive_path
 from coildrive.bench import analysis as analysis_module
 from coildrive.bench.analysis import analyse
 from coildrive.bench.capture_file import Capture
 from coildrive.bench.synth import adc_scaling, synth_capture, synth_design_capture
 from coildrive.config import load_drive
+from coildrive.design import firmware_setting
 from coildrive.design import design
 from coildrive.model.pwm import pwm_steady_state
 from coildrive.model.rl import rise_current
@@ -68,8 +69,8 @@ def _reference(drive, supply, coil_temp, duty, freq):
 
 CASES = {
     # name: (example, board override or None, resolves the PWM ripple)
-    "coil sense, fast ADC": ("demo-valve", "fast", True),
-    "coil sense, 8 samples per PWM period": ("demo-valve", None, False),
+    "coil sense, fast ADC": ("bench-valve", "fast", True),
+    "coil sense, 8 samples per PWM period": ("bench-valve", None, False),
     "switch sense, fast ADC": ("pinch-valve-48v", None, True),
 }
 
@@ -81,7 +82,7 @@ def fast_board(tmp_path_factory):
 
 def _setup(case, fast_board):
     example, board, _ = CASES[case]
-    drive = load_drive(EXAMPLES / f"{example}.toml", fast_board if board == "fast" else None)
+    drive = load_drive(drive_path(example), fast_board if board == "fast" else None)
     return drive, design(drive)
 
 
@@ -95,7 +96,8 @@ def test_recovers_the_model(case, noise, use_events, fast_board):
     cap = synth_design_capture(d, actuations=3, hold_time=0.06, noise_codes=noise, seed=7,
                                coil_temp=temp, events=use_events)
     supply = cap.meta.supply_v
-    ref = _reference(drive, supply, temp, d.hold.duty, d.hold.frequency_hz)
+    duty, peak_s = firmware_setting(d, supply)  # what the design's firmware runs there
+    ref = _reference(drive, supply, temp, duty, d.hold.frequency_hz)
     a = analyse(cap, pull_in_current=drive.pull_in.current, dropout_current=drive.release.current,
                 hold_frequency=d.hold.frequency_hz)
     assert len(a.actuations) == 3, a.notes
@@ -111,7 +113,7 @@ def test_recovers_the_model(case, noise, use_events, fast_board):
         assert act.phases_from == ("events" if use_events else "waveform")
         assert act.pull_in_time_s == pytest.approx(ref["pull_in"], abs=time_tol(ref["slope_pull"])), \
             "pull-in time: textbook RL step, t = L/R ln(V / (V - I R))"
-        peak = d.pull_in.peak_time_s + (0.0 if use_events else d.hold.duty / d.hold.frequency_hz)
+        peak = peak_s + (0.0 if use_events else duty / d.hold.frequency_hz)
         # from the waveform with noise, the top of a slow rise is found within a few samples
         samples = 3 if (noise and not use_events) else 1
         assert act.peak_duration_s == pytest.approx(peak, abs=samples / fs), "peak duration: the design's"
@@ -139,12 +141,13 @@ def test_switch_sense_hold_is_read_from_on_time_samples(fast_board):
     cap = synth_design_capture(d, actuations=1, hold_time=0.06, coil_temp=20.0)
     a = analyse(cap, hold_frequency=d.hold.frequency_hz)
     act = a.actuations[0]
-    ref = _reference(drive, cap.meta.supply_v, 20.0, d.hold.duty, d.hold.frequency_hz)
-    assert act.hold_duty_measured == pytest.approx(d.hold.duty, abs=0.01)
+    duty, _ = firmware_setting(d, cap.meta.supply_v)
+    ref = _reference(drive, cap.meta.supply_v, 20.0, duty, d.hold.frequency_hz)
+    assert act.hold_duty_measured == pytest.approx(duty, abs=0.01)
     h0 = int(np.searchsorted(cap.index, act.peak_end_index))
     h1 = int(np.searchsorted(cap.index, act.off_index))
     plain = float(np.mean(cap.current[(h0 + h1) // 2:h1]))
-    assert plain == pytest.approx(d.hold.duty * ref["hold_mean"], rel=0.02)
+    assert plain == pytest.approx(duty * ref["hold_mean"], rel=0.02)
     assert act.hold_mean_a == pytest.approx(ref["hold_mean"], rel=0.005)
 
 
@@ -170,11 +173,12 @@ def test_synthetic_codes_follow_the_closed_form(fast_board):
     c = drive.coil
     assert c.reference_temp == 20.0  # so the copper is at its stated resistance
     r_on = c.resistance + drive.switch.on_resistance + drive.board.sense.resistance
-    k = np.arange(int(math.ceil(t_on * fs)), int((t_on + d.pull_in.peak_time_s) * fs))
+    _, peak_s = firmware_setting(d, cap.meta.supply_v)
+    k = np.arange(int(math.ceil(t_on * fs)), int((t_on + peak_s) * fs))
     exact = rise_current(k / fs - t_on, 0.0, cap.meta.supply_v, r_on, c.inductance)
     vpa, apc = adc_scaling(drive)
     x = exact / apc
-    clear = np.abs(x - np.round(x)) > 0.01
+    clear = np.abs(x - np.round(x)) > 0.05
     assert clear.sum() > 0.9 * k.size
     assert np.array_equal(cap.code[k][clear], np.floor(x[clear]).astype(int))
 
@@ -202,15 +206,15 @@ def test_armature_dip_is_found_and_a_stuck_armature_shows_none():
     d = design(drive)
     cap = synth_design_capture(d, actuations=2, hold_time=0.03, noise_codes=1.0, seed=1, coil_temp=20.0)
     from coildrive.model.waveform import actuation
-    w = actuation(drive, cap.meta.supply_v, 20.0, d.pull_in.peak_time_s, d.hold.duty,
-                  d.hold.frequency_hz, 0.03)
+    duty, peak_s = firmware_setting(d, cap.meta.supply_v)
+    w = actuation(drive, cap.meta.supply_v, 20.0, peak_s, duty, d.hold.frequency_hz, 0.03)
     impact = w.events["impact"]
     a = analyse(cap, pull_in_current=drive.pull_in.current)
     fs = a.sample_rate_hz
     for act in a.actuations:
         assert act.dip_confidence > 100
         # the smoothing window of the dip (1 % of the peak's samples) bounds the error
-        width = max(3, int(d.pull_in.peak_time_s * fs) // 100)
+        width = max(3, int(peak_s * fs) // 100)
         assert act.seated_time_s == pytest.approx(impact, abs=width / fs), "seat at the model's impact"
         assert act.dip_depth_a > 0.1
     stuck = synth_design_capture(d, actuations=2, hold_time=0.03, noise_codes=1.0, seed=1,

@@ -58,7 +58,7 @@ def test_design_header_plot_and_monte_carlo(tmp_path, demo_drive):
     r = run_cli("design", str(demo_drive), "--header", str(header), "--plot", str(plot),
                 "--prefix", "VALVE2", "--samples", "2000")
     assert r.returncode == 0, r.stderr
-    assert "#define VALVE2_HOLD_COMPARE_TICKS" in header.read_text()
+    assert "#define VALVE2_HOLD_COMPARE_COUNTS" in header.read_text()
     assert plot.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     assert "Monte Carlo: 2000 samples" in r.stdout
 

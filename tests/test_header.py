@@ -29,8 +29,8 @@ int main(void)
 {
     unsigned int k;
     printf("prescaler %lu\n", (unsigned long)P_TIMER_PRESCALER);
-    printf("period_ticks %lu\n", (unsigned long)P_TIMER_PERIOD_TICKS);
-    printf("compare_ticks %lu\n", (unsigned long)P_HOLD_COMPARE_TICKS);
+    printf("period_ticks %lu\n", (unsigned long)P_TIMER_PERIOD_COUNTS);
+    printf("compare_ticks %lu\n", (unsigned long)P_HOLD_COMPARE_COUNTS);
     printf("peak_ticks %lu\n", (unsigned long)P_PEAK_TICKS);
     printf("lockout_ticks %lu\n", (unsigned long)P_RELEASE_LOCKOUT_TICKS);
     printf("pull_in_code %lu\n", (unsigned long)P_ADC_PULL_IN_CODE);
@@ -118,7 +118,7 @@ def test_range_check_fires_on_a_broken_constant(tmp_path, demo_drive):
     require_tool("gcc")
     text = generate_header(design(load_drive(demo_drive)), prefix="P")
     import re
-    broken = re.sub(r"#define P_HOLD_COMPARE_TICKS\s+\d+U", "#define P_HOLD_COMPARE_TICKS 99999UL", text)
+    broken = re.sub(r"#define P_HOLD_COMPARE_COUNTS\s+\d+U", "#define P_HOLD_COMPARE_COUNTS 99999UL", text)
     assert broken != text
     (tmp_path / "drive.h").write_text(broken)
     src = tmp_path / "m.c"

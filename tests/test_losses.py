@@ -23,8 +23,8 @@ from coildrive.model.pwm import pwm_steady_state
 from conftest import EXAMPLES
 
 CASES = [
-    ("demo-valve", 0.74, 20.0),        # Zener, continuous conduction
-    ("demo-valve", 0.25, 28.0),        # Zener, discontinuous conduction
+    ("reagent-valve-zener-24v", 0.74, 20.0),  # Zener, continuous conduction
+    ("reagent-valve-zener-24v", 0.25, 28.0),  # Zener, discontinuous conduction
     ("pinch-valve-48v", 0.6, 48.0),    # clamp across the switch
     ("door-latch-24v", 0.55, 24.0),    # diode + resistor
     ("relay-12v", 0.45, 12.0),         # plain diode, sense under the switch
@@ -112,7 +112,7 @@ def test_energy_is_conserved_per_period(example, duty, supply):
 def test_switching_estimate_scales_with_edges():
     """1/2 V I t per edge (common practice): doubling both transition times doubles it,
     and it is proportional to frequency at fixed currents."""
-    drive = load_drive(EXAMPLES / "demo-valve.toml")
+    drive = load_drive(EXAMPLES / "reagent-valve-zener-24v.toml")
     lp = loop(drive, np.array([24.0]), np.array([60.0]))
     f = 25e3
     ss = pwm_steady_state(0.7, f, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
@@ -125,7 +125,7 @@ def test_switching_estimate_scales_with_edges():
 
 
 def test_slow_path_override_takes_no_zener_power():
-    drive = load_drive(EXAMPLES / "demo-valve.toml")
+    drive = load_drive(EXAMPLES / "reagent-valve-zener-24v.toml")
     slow = dataclasses.replace(drive, freewheel=dataclasses.replace(drive.freewheel, zener_voltage=0.0,
                                                                     type="diode"))
     lp = loop(slow, np.array([24.0]), np.array([60.0]))

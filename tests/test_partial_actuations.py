@@ -19,7 +19,7 @@ import numpy as np
 import pytest
 from typer.testing import CliRunner
 
-from conftest import EXAMPLES, run_cli
+from conftest import drive_path, run_cli
 from coildrive.bench.capture_file import Capture, write_capture
 from coildrive.bench.messages import EventKind
 from coildrive.bench.synth import synth_design_capture
@@ -33,7 +33,7 @@ CUTS = np.linspace(0.0, 1.0, 13)   # from just after the last switch-on to the e
 
 
 def _drive(name):
-    return str(EXAMPLES / f"{name}.toml")
+    return str(drive_path(name))
 
 
 def _cut(cap: Capture, stop: int) -> Capture:
@@ -54,8 +54,8 @@ def _stops(cap: Capture, actuation: int) -> list[int]:
 def captures(tmp_path_factory):
     folder = tmp_path_factory.mktemp("cut")
     out = {}
-    for name in ("demo-valve", "pinch-valve-48v", "locker-latch-12v"):
-        d = design(load_drive(EXAMPLES / f"{name}.toml"))
+    for name in ("bench-valve", "pinch-valve-48v", "locker-latch-12v"):
+        d = design(load_drive(drive_path(name)))
         cap = synth_design_capture(d, actuations=3, hold_time=0.03, noise_codes=1.0, seed=4)
         wrong = synth_design_capture(d, actuations=3, hold_time=0.03, noise_codes=1.0, seed=4,
                                      resistance_scale=1.4)
@@ -70,7 +70,7 @@ def captures(tmp_path_factory):
     return out
 
 
-@pytest.mark.parametrize("name", ["demo-valve", "pinch-valve-48v", "locker-latch-12v"])
+@pytest.mark.parametrize("name", ["bench-valve", "pinch-valve-48v", "locker-latch-12v"])
 @pytest.mark.parametrize("phases", ["events", "waveform"])
 def test_a_capture_stopped_anywhere_in_an_actuation_passes_a_good_device(captures, name, phases):
     paths, _, _, _ = captures[name]
@@ -91,31 +91,31 @@ def test_a_capture_stopped_anywhere_in_an_actuation_passes_a_good_device(capture
 
 
 def test_a_wrong_coil_still_fails_when_cut_short(captures):
-    _, wrong, _, _ = captures["demo-valve"]
-    r = runner.invoke(app, ["check", str(wrong), _drive("demo-valve")])
+    _, wrong, _, _ = captures["bench-valve"]
+    r = runner.invoke(app, ["check", str(wrong), _drive("bench-valve")])
     assert r.exit_code == 1, r.output
     assert "pull_in_time" in r.stdout.split("check FAILED")[1]
 
 
 def test_only_a_cut_actuation_is_nothing_to_check(captures, tmp_path):
-    _, _, cap, _ = captures["demo-valve"]
+    _, _, cap, _ = captures["bench-valve"]
     stop = _stops(cap, 1)[3]
     path = tmp_path / "first.cdcap"
     write_capture(path, _cut(cap, stop))
-    r = runner.invoke(app, ["check", str(path), _drive("demo-valve")])
+    r = runner.invoke(app, ["check", str(path), _drive("bench-valve")])
     assert r.exit_code == 2, r.output
     assert "holds no complete actuation: the capture ended during actuation 1" in r.stderr
 
 
 def test_a_capture_that_starts_mid_actuation_passes(captures, tmp_path):
-    _, _, cap, _ = captures["demo-valve"]
+    _, _, cap, _ = captures["bench-valve"]
     on = [e.index for e in cap.events if e.kind == EventKind.ON]
     start = int(np.searchsorted(cap.index, on[0])) + 2000          # inside the first hold
     late = Capture(cap.index[start:], cap.code[start:], tuple(e for e in cap.events if e.index >= cap.index[start]),
                    (), cap.meta, source="late")
     path = tmp_path / "late.cdcap"
     write_capture(path, late)
-    r = runner.invoke(app, ["check", str(path), _drive("demo-valve"), "--no-events", "--json"])
+    r = runner.invoke(app, ["check", str(path), _drive("bench-valve"), "--no-events", "--json"])
     assert r.exit_code == 0, r.output
     doc = json.loads(r.stdout)
     assert doc["analysis"]["actuations"][0]["partial"] == "start"
@@ -123,21 +123,21 @@ def test_a_capture_that_starts_mid_actuation_passes(captures, tmp_path):
 
 
 def test_scope_records_ending_mid_actuation_pass(tmp_path):
-    d = design(load_drive(EXAMPLES / "demo-valve.toml"))
+    d = design(load_drive(drive_path("bench-valve")))
     full = scope_record(d, actuations=2, seed=6)
     length = full.on_times[1] - full.on_times[0]
     for k, frac in enumerate(np.linspace(0.02, 0.98, 7)):
         rec = scope_record(d, actuations=3, seed=6, duration=full.on_times[1] + length + frac * length)
         path = tmp_path / f"rec{k}.csv"
         write_plain_seconds(rec, path)
-        r = runner.invoke(app, ["check", str(path), _drive("demo-valve")])
+        r = runner.invoke(app, ["check", str(path), _drive("bench-valve")])
         assert r.exit_code == 0, (frac, r.output[-1500:])
 
 
 @pytest.mark.slow
 def test_cli_subprocess_reports_the_cut_actuation(captures):
-    paths, _, _, _ = captures["demo-valve"]
-    r = run_cli("check", str(paths[len(paths) // 2]), _drive("demo-valve"))
+    paths, _, _, _ = captures["bench-valve"]
+    r = run_cli("check", str(paths[len(paths) // 2]), _drive("bench-valve"))
     assert r.returncode == 0, r.stdout + r.stderr
     text = " ".join(r.stdout.split())      # the table and notes wrap at the terminal's width
     assert "the capture ended during actuation 3: it is reported but left out of the check" in text

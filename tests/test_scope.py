@@ -20,7 +20,7 @@ import numpy as np
 import pytest
 from typer.testing import CliRunner
 
-from conftest import BOARDS, EXAMPLES, run_cli
+from conftest import BOARDS, EXAMPLES, drive_path, run_cli
 from coildrive.bench.analysis import analyse
 from coildrive.bench.check import check_capture
 from coildrive.bench.messages import EventKind
@@ -35,13 +35,13 @@ from scope_layouts import LAYOUTS, scope_record, write_plain_seconds, write_prea
 
 ALPHA = 0.00393  # IEC 60028
 TEMP = 35.0
-DEMO = str(EXAMPLES / "demo-valve.toml")
+DEMO = str(drive_path("bench-valve"))  # one fixed compare and peak at every supply
 runner = CliRunner()
 
 
 @pytest.fixture(scope="module")
 def demo():
-    return design(load_drive(EXAMPLES / "demo-valve.toml"))
+    return design(load_drive(DEMO))
 
 
 @pytest.fixture(scope="module")

@@ -76,11 +76,11 @@ def test_table_header_and_plot(tmp_path, tuned):
     assert "licensed practice" in out and "switch see up to" in out, "cautions shown"
     assert plot.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     text = header.read_text()
-    m = re.search(r"#define VT_HOLD_COMPARE_TICKS\s+(\d+)U", text)
+    m = re.search(r"#define VT_HOLD_COMPARE_COUNTS\s+(\d+)U", text)
     src = tmp_path / "main.c"
     src.write_text('#include <stdio.h>\n#include "tuned.h"\nint main(void)\n{\n'
-                   '    printf("%lu %lu\\n", (unsigned long)VT_HOLD_COMPARE_TICKS, '
-                   '(unsigned long)VT_TIMER_PERIOD_TICKS);\n    return 0;\n}\n')
+                   '    printf("%lu %lu\\n", (unsigned long)VT_HOLD_COMPARE_COUNTS, '
+                   '(unsigned long)VT_TIMER_PERIOD_COUNTS);\n    return 0;\n}\n')
     exe = tmp_path / "main"
     cc = subprocess.run(["gcc", "-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic", str(src),
                          "-o", str(exe)], capture_output=True, text=True, cwd=tmp_path)

@@ -249,7 +249,10 @@ def predict(design, point: OperatingPoint, hold_time: float) -> tuple[dict, obje
 
     drive = design.drive
     cold = dataclasses.replace(drive, thermal=dataclasses.replace(drive.thermal, resistance=0.0))
-    peak, duty, freq = design.pull_in.peak_time_s, design.hold.duty, design.hold.frequency_hz
+    from ..design import firmware_setting
+
+    duty, peak = firmware_setting(design, point.supply_v)
+    freq = design.hold.frequency_hz
     res = evaluate(cold, np.array([point.supply_v]), np.array([point.coil_temp_c]), 1.0, 1.0,
                    duty, freq, peak)
     w = actuation(cold, point.supply_v, point.coil_temp_c, peak, duty, freq, hold_time,
@@ -369,7 +372,10 @@ def check_capture(capture: Capture, design, tolerances: Tolerances | None = None
         notes.extend(str(x) for x in meta.extra.get("notes", []))
     if meta.board is not None and meta.board != board.name:
         notes.append(f"the capture says board {meta.board!r}, the drive uses {board.name!r}")
-    for key, mine in (("peak_time_s", design.pull_in.peak_time_s), ("hold_duty", design.hold.duty),
+    from ..design import firmware_setting
+
+    duty_fw, peak_fw = firmware_setting(design, point.supply_v)  # what its firmware runs there
+    for key, mine in (("peak_time_s", peak_fw), ("hold_duty", duty_fw),
                       ("hold_frequency_hz", design.hold.frequency_hz)):
         theirs = getattr(meta, key)
         if theirs is not None and abs(theirs - mine) > 1e-6 * max(abs(mine), 1e-12):

@@ -260,7 +260,7 @@ class VirtualDevice:
         self.drive = drive = design.drive
         if design.hold.current_mode is not None:
             raise ValueError("the virtual device runs a voltage-mode (fixed duty) hold")
-        if design.pull_in.peak_ticks <= 0:
+        if not design.pull_in.peak_ticks:
             raise ValueError("the design has no peak phase (the pull-in current is never reached)")
         board = drive.board
         self.sample_rate = float(board.adc.sample_rate)
@@ -268,8 +268,11 @@ class VirtualDevice:
         self.byte_time = BITS_PER_BYTE / self.baud
         self.tick_rate = float(board.tick.rate)
         self.supply, self.coil_temp = operating_point(drive, options.supply, options.coil_temp)
-        self.settings = Settings(design.pull_in.peak_ticks, design.timer.prescaler,
-                                 design.timer.period_ticks, design.timer.compare_ticks)
+        from ..design import firmware_setting  # the compare and peak its firmware runs at this supply
+
+        duty, peak = firmware_setting(design, self.supply)
+        self.settings = Settings(round(peak * self.tick_rate), design.timer.prescaler,
+                                 design.timer.period_ticks, round(duty * design.timer.period_ticks))
         rate = Fraction(self.sample_rate).limit_denominator(2**32 - 1)
         _, apc = adc_scaling(drive)
         self.info = Info(rate.numerator, rate.denominator, board.adc.bits, apc, 0,

@@ -270,7 +270,11 @@ def synth_capture(drive: Drive, peak_time: float, duty: float, frequency: float,
 
 
 def synth_design_capture(design, **kwargs) -> Capture:
-    """:func:`synth_capture` with a :class:`~coildrive.design.Design`'s drive, peak time,
-    duty and frequency (as the timer makes it); keyword arguments as there."""
-    return synth_capture(design.drive, design.pull_in.peak_time_s, design.hold.duty,
-                         design.hold.frequency_hz, **kwargs)
+    """:func:`synth_capture` with a :class:`~coildrive.design.Design`'s drive, and the peak
+    time, duty and frequency its firmware runs at the capture's supply (the supply table's
+    entry where it looks the duty up); keyword arguments as there."""
+    from ..design import firmware_setting
+
+    supply, _ = operating_point(design.drive, kwargs.get("supply"), kwargs.get("coil_temp"))
+    duty, peak = firmware_setting(design, supply)
+    return synth_capture(design.drive, peak, duty, design.hold.frequency_hz, **kwargs)

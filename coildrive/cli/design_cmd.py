@@ -106,14 +106,16 @@ def simulate_command(
     if points < 2:
         raise InputError("--points", "", f"{points} is below 2, expected at least 2 samples per segment")
     d = design(load_drive(drive, board))
-    if d.pull_in.peak_ticks == 0:
-        raise InputError(str(drive), "pull_in.current", "is never reached at the worst corner, "
-                         "so the design has no peak time to simulate")
+    if d.pull_in.peak_ticks is None:
+        raise InputError(str(drive), "pull_in.current", f"{d.pull_in.not_reached}, so the design "
+                         "has no peak time to simulate")
     w = actuation(d, v, t, h, r_factor, l_factor, points,
                   label=f"{v:g} V, coil {t:g} degC, R x{r_factor:g}, L x{l_factor:g}")
     write_atomic(csv, w.to_csv())
-    status(f"wrote {csv}: {len(w.time)} samples, peak {d.pull_in.peak_time_s * 1e3:.4g} ms, "
-           f"hold duty {d.hold.duty:.4f} at {d.hold.frequency_hz:.6g} Hz, off at "
+    from ..design import firmware_setting
+    duty, peak = firmware_setting(d, v)
+    status(f"wrote {csv}: {len(w.time)} samples, peak {peak * 1e3:.4g} ms, "
+           f"hold duty {duty:.4f} ({d.hold.regulation}) at {d.hold.frequency_hz:.6g} Hz, off at "
            f"{w.events['off'] * 1e3:.4g} ms, zero at {w.events['zero'] * 1e3:.4g} ms")
     if w.bypass_on is not None:
         s = d.split_decay

@@ -73,16 +73,20 @@ class HeaderView:
             Constant(f"{m}_TIMER_PRESCALER_REG", t.prescaler - 1, "divide ratio - 1, for timers that take it so"),
             Constant(f"{m}_TIMER_PRESCALER_MAX", board.timer.prescaler_max, "largest divide ratio of this timer"),
             Constant(f"{m}_TIMER_COUNTER_MAX", 2**board.timer.bits - 1, f"{board.timer.bits}-bit counter"),
-            Constant(f"{m}_TIMER_PERIOD_TICKS", t.period_ticks, "timer counts per PWM period"),
+            Constant(f"{m}_TIMER_PERIOD_COUNTS", t.period_ticks, "timer counts per PWM period"),
             Constant(f"{m}_TIMER_RELOAD", t.period_ticks - 1, "period - 1, for auto-reload registers"),
-            Constant(f"{m}_HOLD_COMPARE_TICKS", t.compare_ticks,
-                     f"on-time counts of the hold (duty {d.hold.duty:.4f})"),
+            Constant(f"{m}_HOLD_COMPARE_COUNTS", t.compare_ticks,
+                     f"on-time counts of the hold (duty {d.hold.duty:.4f})"
+                     + (": the table's first entry, safe at every supply" if d.hold.regulation == "supply_table" else "")),
+            Constant(f"{m}_REGULATION_FIXED", 0, "hold regulation: one compare value"),
+            Constant(f"{m}_REGULATION_SUPPLY_TABLE", 1, "hold regulation: compare looked up against the supply"),
+            Constant(f"{m}_REGULATION_CURRENT", 2, "hold regulation: current mode (thresholds below)"),
+            Constant(f"{m}_PEAK_COMPENSATED", int(d.peak_table is not None),
+                     "1: peak ticks looked up against the supply (peak table below)"),
             Constant(f"{m}_HOLD_FREQUENCY_HZ", round(t.frequency_hz),
                      f"hold PWM frequency as the timer makes it ({t.frequency_hz:.6g} Hz)"),
             Constant(f"{m}_TICK_RATE_HZ", round(board.tick.rate), "scheduler tick rate"),
-            Constant(f"{m}_PEAK_TICKS", d.pull_in.peak_ticks,
-                     f"peak phase: {d.pull_in.peak_time_s * 1e3:.4g} ms (worst pull-in "
-                     f"{d.pull_in.time_s * 1e3:.4g} ms x {d.pull_in.margin:g}, +1 tick)"),
+            Constant(f"{m}_PEAK_TICKS", d.pull_in.peak_ticks or 0, _peak_comment(d)),
             Constant(f"{m}_RELEASE_LOCKOUT_TICKS", d.release.lockout_ticks,
                      f"wait after turn-off before re-actuating: current is zero after "
                      f"{d.release.zero_time_s * 1e3:.4g} ms"
@@ -98,8 +102,22 @@ class HeaderView:
                      f"open load below {a.open_load_a:.4g} A (with the switch on)"),
             Constant(f"{m}_SUPPLY_MIN_CODE", a.supply_min_code, f"supply sense at {d.drive.supply.min:.4g} V"),
             Constant(f"{m}_SUPPLY_MAX_CODE", a.supply_max_code, f"supply sense at {d.drive.supply.max:.4g} V"),
-            Constant(f"{m}_DUTY_TABLE_LEN", len(d.duty_table.adc_codes), "entries in the duty table"),
         ]
+        if d.duty_table.adc_codes:
+            self.constants.append(Constant(f"{m}_DUTY_TABLE_LEN", len(d.duty_table.adc_codes),
+                                           "entries in the duty table"))
+        if d.peak_table is not None:
+            self.constants.append(Constant(f"{m}_PEAK_TABLE_LEN", len(d.peak_table.adc_codes),
+                                           "entries in the peak table"))
+        self.regulation = {"fixed": "FIXED", "supply_table": "SUPPLY_TABLE",
+                           "current": "CURRENT"}[d.hold.regulation]
+        self.peak_table = ([] if d.peak_table is None else
+                           list(zip(d.peak_table.adc_codes, d.peak_table.peak_ticks, d.peak_table.supply_v)))
+        self.peak_type = c_uint_type(max([p[1] for p in self.peak_table], default=1))
+        self.regulation_words = {
+            "fixed": f"fixed duty {d.hold.duty:.4f}",
+            "supply_table": f"duty table against the supply (first entry {d.hold.duty:.4f})",
+            "current": "current mode (fixed-duty fallback below)"}[d.hold.regulation]
         if d.armature is not None:
             self.constants += _armature_constants(d, m)
         self.bypass_constants = _bypass_constants(d, m)
@@ -111,6 +129,16 @@ class HeaderView:
 
     def value(self, suffix: str) -> int:
         return next(c.value for c in self.constants if c.name == f"{self.macro}_{suffix}")
+
+
+def _peak_comment(d: Design) -> str:
+    p = d.pull_in
+    if p.peak_ticks is None:
+        return "no peak: " + (p.not_reached or "the pull-in current is not reached")
+    how = (f"worst pull-in {p.time_s * 1e3:.4g} ms x {p.margin:g}" if p.governed_by == "time margin" else
+           f"{p.current_margin:g} x pull-in current by the shortest peak")
+    text = f"peak phase: {p.peak_time_s * 1e3:.4g} ms ({how}, +1 tick)"
+    return text + ("; the longest entry of the peak table" if p.compensated else "")
 
 
 def _armature_constants(d: Design, m: str) -> list[Constant]:
@@ -175,7 +203,7 @@ def _current_relabel_fallback(design: Design, macro: str, constants: list) -> li
     if design.hold.current_mode is None:
         return constants
     fallback = design.timer.compare_ticks / design.timer.period_ticks
-    notes = {f"{macro}_HOLD_COMPARE_TICKS": f"fixed-duty fallback: on-time counts (duty {fallback:.4f})",
+    notes = {f"{macro}_HOLD_COMPARE_COUNTS": f"fixed-duty fallback: on-time counts (duty {fallback:.4f})",
              f"{macro}_HOLD_FREQUENCY_HZ": f"fixed-duty fallback PWM frequency ({design.timer.frequency_hz:.6g} Hz)"}
     return [dataclasses.replace(c, comment=notes[c.name]) if c.name in notes else c for c in constants]
 
@@ -188,8 +216,8 @@ def _current_header_summary(design: Design) -> list[str]:
     what = (f"hysteretic {r.lower_a:.4g}..{r.upper_a:.4g} A" if r.control == "hysteretic" else
             f"peak {r.upper_a:.4g} A, off {r.off_time_s * 1e6:.5g} us")
     return [f"current   mode hold, {what}: switching {r.min_frequency_hz:.5g}..{r.max_frequency_hz:.5g} Hz "
-            f"over the corners (nominal {r.nominal_frequency_hz:.5g} Hz); the PWM compare and duty "
-            "table below are the fixed-duty fallback"]
+            f"over the corners (nominal {r.nominal_frequency_hz:.5g} Hz); the PWM compare below is "
+            "the fixed-duty fallback"]
 
 
 def _current_header_checks(design: Design, macro: str) -> list[tuple[str, str]]:

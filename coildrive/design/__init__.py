@@ -18,13 +18,13 @@ Imports run one way: ``coildrive.model`` and the shared modules below, the outpu
 (``codegen``, ``cli``), ``bench`` and ``tune`` above.
 """
 
-from .core import actuation, design, design_waveforms
+from .core import actuation, design, design_waveforms, firmware_setting
 from .result import (ARMATURE_CORNER_KEYS, ELEMENT_NAMES, ActuationPoint, AdcThresholds,
-                     ArmatureResult, Check, Corner, CurrentModeResult, Design, DutyTable,
+                     ArmatureResult, Check, Corner, CurrentModeResult, Design, DutyTable, PeakTable,
                      HoldResult, PullInResult, ReleaseResult, SplitDecayResult, Thresholds,
                      TimerResult)
 
 __all__ = ["ARMATURE_CORNER_KEYS", "ELEMENT_NAMES", "ActuationPoint", "AdcThresholds",
-           "ArmatureResult", "Check", "Corner", "CurrentModeResult", "Design", "DutyTable",
+           "ArmatureResult", "Check", "Corner", "CurrentModeResult", "Design", "DutyTable", "PeakTable",
            "HoldResult", "PullInResult", "ReleaseResult", "SplitDecayResult", "Thresholds",
-           "TimerResult", "actuation", "design", "design_waveforms"]
+           "TimerResult", "actuation", "design", "design_waveforms", "firmware_setting"]

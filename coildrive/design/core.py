@@ -10,6 +10,7 @@ outputs that show one.
 from __future__ import annotations
 
 from ..config import Drive
+from .firmware import firmware_setting  # noqa: F401 -- re-exported: part of this module's API
 from .holds import strategy_for
 from .result import Design
 

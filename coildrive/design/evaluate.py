@@ -22,10 +22,14 @@ from ..model.rl import decay_current, decay_integrals, decay_time, rise_current,
 from ..model.thermal import settle_temperature
 
 
-def hold_temperature(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency):
-    """Coil temperature in degC after a long hold at ``duty``/``frequency`` at each point."""
+def hold_temperature(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
+                     factors: dict | None = None):
+    """Coil temperature in degC after a long hold at ``duty``/``frequency`` at each point
+    (``factors``: the loop's other tolerance factors, see :func:`coildrive.model.circuit.loop`)."""
+    factors = factors or {}
+
     def power_at(temp):
-        lp = loop(drive, supply, temp, r_factor, l_factor)
+        lp = loop(drive, supply, temp, r_factor, l_factor, **factors)
         ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
         return ss.rms**2 * lp.r_coil
     return settle_temperature(ambient, drive.thermal.resistance, power_at)
@@ -160,7 +164,8 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
 
 def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
              peak_time, mechanics: bool = True,
-             reuse: "PointResults | None" = None) -> PointResults:
+             reuse: "PointResults | None" = None, coil_temp=None,
+             factors: dict | None = None) -> PointResults:
     """All figures for a setting at the points (see :class:`PointResults`).
 
     Parameters
@@ -171,6 +176,10 @@ def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
         the hold figures are meaningful; for searches over the hold duty)
     reuse : results of an earlier call at the same points and setting but another peak
         time; its armature runs are reused where the new peak current is closed form
+    coil_temp : degC at each point (the envelope's coil-temperature axis); ``None``: the
+        temperature a long hold at the point settles at
+    factors : the loop's other tolerance factors (diode, fast element, sense resistor)
+    duty and peak_time may be arrays over the points (a supply table, a compensated peak).
 
     With an ``[armature]`` the pull-in time is the time until the armature rests on the
     seat, the current at the end of the peak follows the moving armature, and the
@@ -181,15 +190,20 @@ def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
     """
     supply, ambient, r_factor, l_factor = np.broadcast_arrays(
         *(np.asarray(x, float) for x in (supply, ambient, r_factor, l_factor)))
-    temp = hold_temperature(drive, supply, ambient, r_factor, l_factor, duty, frequency)
+    factors = factors or {}
+    if coil_temp is None:
+        temp = hold_temperature(drive, supply, ambient, r_factor, l_factor, duty, frequency, factors)
+    else:
+        temp = np.broadcast_to(np.asarray(coil_temp, float), supply.shape).copy()
     finite = np.where(np.isfinite(temp), temp, drive.thermal.max_coil_temp)
-    lp = loop(drive, supply, finite, r_factor, l_factor)
+    lp = loop(drive, supply, finite, r_factor, l_factor, **factors)
     t_pull = rise_time(drive.pull_in.current, 0.0, lp.v_on, lp.r_on, lp.inductance)
     i_peak = rise_current(peak_time, 0.0, lp.v_on, lp.r_on, lp.inductance)
     ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
     power = ss.rms**2 * lp.r_coil
     i_off = ss.i_max
-    lp_rel = loop(drive, supply, finite, r_factor, l_factor, path="release") if split_decay(drive) else lp
+    lp_rel = (loop(drive, supply, finite, r_factor, l_factor, path="release", **factors)
+              if split_decay(drive) else lp)
     t_drop, t_zero, energy, i_fast = release_figures(drive, lp, lp_rel, i_off)
     arm = None
     if drive.armature is not None and mechanics:

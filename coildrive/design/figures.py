@@ -17,6 +17,7 @@ from ..model.circuit import split_decay
 from ..model.losses import HoldLosses
 from .corners import CornerGrid
 from .evaluate import PointResults
+from .envelope import reading_factors
 from .result import AdcThresholds, Corner, PullInResult, ReleaseResult
 
 #: Over-current threshold above the highest normal current (common practice).
@@ -54,7 +55,13 @@ def corner_armature(res: PointResults, k: int) -> dict | None:
     }
 
 
-def corners_of(grid: CornerGrid, res: PointResults, losses: HoldLosses | None = None) -> list[Corner]:
+def corners_of(grid: CornerGrid, res: PointResults, losses: HoldLosses | None = None,
+               high: PointResults | None = None) -> list[Corner]:
+    """The corners as :class:`Corner` results: the hold figures from ``res``, and where the
+    firmware's hold varies with its reading of the supply, the end-of-peak current, the
+    switch voltage, the release energy and the coil power from ``high`` (the most
+    current it may run there)."""
+    hi = res if high is None else high
     out = []
     nan = np.full(len(grid), math.nan)
     fw_p = nan if losses is None else np.broadcast_to(losses.freewheel, nan.shape)
@@ -65,14 +72,14 @@ def corners_of(grid: CornerGrid, res: PointResults, losses: HoldLosses | None = 
             supply_v=float(res.supply[k]), ambient_c=float(res.ambient[k]),
             coil_temp_c=float(res.coil_temp[k]), resistance_ohm=float(res.loop.r_coil[k]),
             inductance_h=float(res.loop.inductance[k]), pull_in_time_s=float(res.pull_in_time[k]),
-            peak_end_current_a=float(res.peak_end_current[k]),
+            peak_end_current_a=float(hi.peak_end_current[k]),
             hold_mean_current_a=float(res.hold.mean[k]), hold_ripple_a=float(res.hold.ripple[k]),
             hold_rms_current_a=float(res.hold.rms[k]),
             hold_conduction="discontinuous" if res.hold.dcm[k] else "continuous",
-            coil_power_w=float(res.coil_power[k]), release_time_s=float(res.release_time[k]),
-            release_zero_time_s=float(res.release_zero_time[k]),
-            peak_switch_voltage_v=float(res.peak_switch_voltage[k]),
-            release_energy_j=float(res.release_energy[k]),
+            coil_power_w=float(hi.coil_power[k]), release_time_s=float(hi.release_time[k]),
+            release_zero_time_s=float(hi.release_zero_time[k]),
+            peak_switch_voltage_v=float(hi.peak_switch_voltage[k]),
+            release_energy_j=float(hi.release_energy[k]),
             armature=corner_armature(res, k),
             freewheel_power_w=float(fw_p[k]), switch_power_w=float(sw_p[k]),
         ))
@@ -146,23 +153,31 @@ def saving_figures(drive: Drive, res: PointResults, loss: HoldLosses, duty: floa
     }
 
 
-def peak_ticks_for(drive: Drive, t_pull: float) -> int:
-    """Peak phase in scheduler ticks: the worst pull-in time x ``pull_in.margin``, rounded up,
-    plus one tick (a tick-based phase may start anywhere inside a tick); 0 when the
-    pull-in current is never reached."""
-    if not math.isfinite(t_pull):
-        return 0
-    return math.ceil(t_pull * drive.pull_in.margin * drive.board.tick.rate - 1e-9) + 1
-
-
-def pull_in_result(drive: Drive, grid: CornerGrid, res: PointResults, k_pull: int, t_pull: float,
-                   peak_ticks: int) -> PullInResult:
-    """The pull-in figures: the worst-corner time ``t_pull`` s (corner ``k_pull``), the
-    chosen peak, and the highest current at its end over the points of ``res``."""
-    return PullInResult(current_a=drive.pull_in.current, time_s=t_pull,
-                        worst_corner=grid.label(k_pull), margin=drive.pull_in.margin,
-                        peak_time_s=peak_ticks / drive.board.tick.rate, peak_ticks=peak_ticks,
-                        peak_end_current_max_a=float(np.max(res.peak_end_current)))
+def pull_in_result(drive: Drive, grid: CornerGrid, res: PointResults, pk,
+                   shortest_current) -> PullInResult:
+    """The pull-in figures from the sized peak ``pk`` (:class:`~coildrive.design.peak.PeakPlan`):
+    the worst-corner times, the chosen peak, the highest current at its end over the points
+    of ``res`` (where it came from), and the current the shortest real peak carries
+    (``shortest_current`` A per point) at the force margin's worst corner."""
+    rate = drive.board.tick.rate
+    peak_end = np.asarray(res.peak_end_current, float)
+    k_end = worst(peak_end)
+    reached = pk.ticks is not None
+    k_f = pk.k_force
+    return PullInResult(
+        current_a=drive.pull_in.current, time_s=pk.t_pull if reached else None,
+        worst_corner=grid.label(pk.k_pull), margin=drive.pull_in.margin,
+        peak_time_s=pk.ticks / rate if reached else None, peak_ticks=pk.ticks,
+        peak_end_current_max_a=float(peak_end[k_end]) if reached else 0.0,
+        peak_end_corner=grid.label(k_end) if reached else "",
+        current_margin=drive.pull_in.current_margin, force_current_a=pk.force_current,
+        force_time_s=pk.t_force if math.isfinite(pk.t_force) else None,
+        force_corner=grid.label(k_f), settle_time_s=drive.pull_in.settle_time,
+        time_margin_ticks=pk.time_margin_ticks, force_margin_ticks=pk.force_margin_ticks,
+        governed_by=pk.governed_by,
+        shortest_peak_s=float(np.min(pk.short_time)) if reached else None,
+        shortest_peak_current_a=float(np.asarray(shortest_current)[k_f]) if reached else None,
+        compensated=pk.table is not None, not_reached=pk.not_reached)
 
 
 def hold_spread(grid: CornerGrid, res: PointResults) -> dict:
@@ -175,45 +190,69 @@ def hold_spread(grid: CornerGrid, res: PointResults) -> dict:
         min_mean_current_a=float(res.hold.mean[k_min]), min_corner=grid.label(k_min),
         max_mean_current_a=float(res.hold.mean[k_max]), max_corner=grid.label(k_max),
         ripple_a=float(np.max(res.hold.ripple)),
-        coil_power_w=float(np.max(res.coil_power)), coil_temp_c=float(res.coil_temp[k_hot]),
-        hottest_corner=grid.label(k_hot), discontinuous_corners=int(np.sum(res.hold.dcm)))
+        coil_power_w=float(res.coil_power[k_hot]), coil_temp_c=float(res.coil_temp[k_hot]),
+        hottest_corner=grid.label(k_hot), discontinuous_corners=int(np.sum(res.hold.dcm)),
+        coil_power_corner=grid.label(k_hot))
 
 
-def release_result(drive: Drive, grid: CornerGrid, res: PointResults) -> ReleaseResult:
-    """The release through the freewheel path from the top of the hold ripple, and the
-    lockout: wait for zero current -- and, with an armature, for it to be back on the
-    open stop -- in whole scheduler ticks plus one."""
+def release_result(drive: Drive, grid: CornerGrid, res: PointResults, offs: list[dict]) -> ReleaseResult:
+    """The release through the freewheel path from the top of the hold ripple, the lockout
+    (wait for zero current -- and, with an armature, for it to be back on the open stop --
+    in whole scheduler ticks plus one), and the worst switch voltage and energy of every
+    turn-off (``offs``, :func:`coildrive.design.turnoff.turn_offs`)."""
     k_rel = worst(res.release_time)
     rating = drive.switch.max_voltage
     settle = float(np.max(res.release_zero_time))
     if res.armature is not None:
         settle = max(settle, float(np.max(res.release_time)))
     lockout = math.ceil(settle * drive.board.tick.rate - 1e-9) + 1 if math.isfinite(settle) else 0
+    v_sw = max(float(np.max(res.peak_switch_voltage)), *(o["switch_voltage_v"] for o in offs))
+    top = max(offs, key=lambda o: o["energy_j"])
     return ReleaseResult(
         freewheel=drive.freewheel.type, dropout_current_a=drive.release.current,
         time_s=float(res.release_time[k_rel]), zero_time_s=float(np.max(res.release_zero_time)),
         worst_corner=grid.label(k_rel), lockout_ticks=lockout,
-        peak_switch_voltage_v=float(np.max(res.peak_switch_voltage)),
-        switch_limit_v=rating * drive.switch.derating, switch_rating_v=rating,
-        energy_j=float(np.max(res.release_energy)),
+        peak_switch_voltage_v=v_sw, switch_limit_v=rating * drive.switch.derating,
+        switch_rating_v=rating, energy_j=top["energy_j"], turn_offs=offs,
+        worst_turn_off=top["event"],
     )
 
 
-def adc_thresholds(drive: Drive, res: PointResults, min_mean_current: float) -> AdcThresholds:
-    """Current thresholds as ADC codes: the over-current trip above the highest normal
-    current (end of the peak or top of the hold ripple), open load below the lowest hold
-    mean, and the supply-sense codes of the supply limits."""
+def adc_thresholds(drive: Drive, res: PointResults, res_low: PointResults, min_mean_current: float,
+                   grid: CornerGrid) -> AdcThresholds:
+    """Current thresholds as ADC codes of the current-sense channel.
+
+    Over-current: :data:`OVER_CURRENT_FACTOR` above the highest healthy current of the
+    envelope (the end of the longest peak or the top of the hold ripple, in ``res``) as
+    the channel may read it high (sense resistor and amplifier at the ends of their
+    tolerances); ``trip_current_a`` is the true current the turn-off may interrupt at the
+    trip: the threshold with the channel reading low, one code up for the converter's step. Open load: :data:`OPEN_LOAD_FACTOR` below the lowest hold mean
+    (``res_low``) as the channel may read it low. The supply-sense codes of the supply
+    limits (0 on a board that does not measure its supply).
+    """
     board = drive.board
     adc = board.adc
     vpa = board.sense.resistance * board.sense.gain
-    over_a = OVER_CURRENT_FACTOR * max(float(np.max(res.peak_end_current)), float(np.max(res.hold.i_max)))
-    open_a = OPEN_LOAD_FACTOR * min_mean_current
+    low, high = reading_factors(drive)
+    peaks = np.asarray(res.peak_end_current, float)
+    tops = np.asarray(res.hold.i_max, float)
+    healthy = np.maximum(np.where(np.isfinite(peaks), peaks, 0.0), np.where(np.isfinite(tops), tops, 0.0))
+    k = worst(healthy)
+    over_a = OVER_CURRENT_FACTOR * float(healthy[k]) * high
+    open_a = OPEN_LOAD_FACTOR * min_mean_current * low
+    over_code = adc_code(over_a * vpa, adc.reference, adc.bits)
+    lsb_a = adc.reference / 2**adc.bits / vpa
+    ss = board.supply_sense
+
+    def supply_code(v: float) -> int:
+        return 0 if ss is None else adc_code(v / ss.divider, adc.reference, adc.bits)
     return AdcThresholds(
         volts_per_amp=vpa, full_scale_current_a=adc.reference / vpa,
         pull_in_code=adc_code(drive.pull_in.current * vpa, adc.reference, adc.bits),
         hold_code=adc_code(drive.hold.current * vpa, adc.reference, adc.bits),
-        over_current_code=adc_code(over_a * vpa, adc.reference, adc.bits), over_current_a=over_a,
+        over_current_code=over_code, over_current_a=over_a,
         open_load_code=adc_code(open_a * vpa, adc.reference, adc.bits), open_load_a=open_a,
-        supply_min_code=adc_code(drive.supply.min / board.supply_sense.divider, adc.reference, adc.bits),
-        supply_max_code=adc_code(drive.supply.max / board.supply_sense.divider, adc.reference, adc.bits),
+        supply_min_code=supply_code(drive.supply.min), supply_max_code=supply_code(drive.supply.max),
+        healthy_max_current_a=float(healthy[k]), healthy_max_corner=grid.label(k),
+        trip_current_a=(over_code + 1) * lsb_a / low, reading_low=low, reading_high=high,
     )

@@ -49,11 +49,13 @@ from ..model.losses import HoldLosses, element_powers
 from ..model.rl import decay_current, decay_time, rise_current, rise_time
 from ..model.thermal import closed_form_temperature, settle_temperature
 from . import hold_voltage
-from .checks import base_checks, cautions, loss_cautions, loss_checks
+from .checks import base_checks, cautions, energy_checks, loss_cautions, loss_checks
 from .corners import CornerGrid, corner_grid, nominal_point
 from .evaluate import PointResults, release_figures, switch_voltage_peak
-from .figures import (adc_thresholds, corners_of, hold_spread, loss_figures, peak_ticks_for,
-                      pull_in_result, release_result, saving_figures, slow_hold_drive, worst)
+from .figures import (adc_thresholds, corners_of, hold_spread, loss_figures, pull_in_result,
+                      release_result, saving_figures, slow_hold_drive)
+from .peak import plan_peak, shortest_peak_current
+from .turnoff import turn_offs
 from .result import Check, CurrentModeResult, Design, HoldResult, Thresholds
 from .timer import solve_timer
 
@@ -294,6 +296,9 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     if samples > 0:
         raise InputError("--samples", "", "the Monte Carlo covers the voltage-mode hold only "
                          "(this drive has hold.mode = \"current\")")
+    if drive.pull_in.compensate:
+        raise InputError(drive.source, "pull_in.compensate", "a supply-compensated peak is "
+                         "designed for voltage-mode holds only; leave it out with mode = \"current\"")
     fallback = hold_voltage.design(
         dataclasses.replace(drive, hold=dataclasses.replace(drive.hold, mode="voltage")))
     grid = corner_grid(drive)
@@ -301,10 +306,9 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     board = drive.board
 
     first, _ = evaluate_current(drive, th, grid.supply, grid.ambient, grid.r_factor, grid.l_factor, 0.0)
-    k_pull = worst(first.pull_in_time)
-    t_pull = float(first.pull_in_time[k_pull])
-    peak_ticks = peak_ticks_for(drive, t_pull)
-    peak_time = peak_ticks / board.tick.rate
+    pk = plan_peak(drive, grid, first)
+    k_pull = pk.k_pull
+    peak_time = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate
     res, cm = evaluate_current(drive, th, grid.supply, grid.ambient, grid.r_factor, grid.l_factor,
                                peak_time)
     nom_grid = nominal_point(drive)
@@ -323,10 +327,11 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
         duty=float(np.max(cm.duty)), compare_ticks=fallback.hold.compare_ticks,
         current_step_a=th.lsb_a, **hold_spread(grid, res), **loss_figures(drive, grid, loss),
         split_decay_saving=_split_saving(drive, grid, res, cm, loss, fallback, peak_time),
-        current_mode=result, thresholds=th)
-    release = release_result(drive, grid, res)
-    pull_in = pull_in_result(drive, grid, res, k_pull, t_pull, peak_ticks)
-    thresholds = adc_thresholds(drive, res, hold.min_mean_current_a)
+        current_mode=result, thresholds=th, regulation="current")
+    thresholds = adc_thresholds(drive, res, res, hold.min_mean_current_a, grid)
+    offs = turn_offs(drive, grid, res, res.peak_end_current, thresholds.trip_current_a)
+    release = release_result(drive, grid, res, offs)
+    pull_in = pull_in_result(drive, grid, res, pk, shortest_peak_current(drive, res, pk.short_time))
 
     setting = solve_timer(board.timer.clock, board.timer.bits, board.timer.prescaler_max,
                           drive.hold.frequency, drive.hold.frequency_tolerance, board.timer.prescalers)
@@ -337,6 +342,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     checks += _current_checks(drive, th, result, thresholds, res, cm, grid)
     split = _split_result(drive, fallback, cm) if split_decay(drive) else None
     checks += loss_checks(drive, hold, loss, grid, split)
+    checks += energy_checks(drive, release)
     for name in voltage_only:
         if name in old:
             c = old[name]

@@ -25,22 +25,23 @@ import numpy as np
 
 from ..config import Drive
 from ..errors import InputError
-from ..model.circuit import loop, split_decay
+from ..model.circuit import split_decay
 from ..model.losses import HoldLosses, hold_losses
-from ..model.pwm import duty_for_mean, pwm_steady_state
-from .checks import base_checks, cautions, loss_cautions, loss_checks
-from .corners import CornerGrid, corner_grid, nominal_point
-from .evaluate import PointResults, evaluate, required_duty
-from .figures import (adc_code, adc_thresholds, corners_of, hold_spread, loss_figures, path_name,
-                      peak_ticks_for, pull_in_result, release_result, saving_figures,
-                      slow_hold_drive, worst)
+from ..model.pwm import pwm_steady_state
+from .checks import base_checks, cautions, energy_checks, loss_cautions, loss_checks
+from .corners import nominal_point
+from .envelope import supply_codes
+from .evaluate import PointResults, evaluate
+from .firmware import firmware_setting
+from .figures import (ASSUMED_DIODE_DROP, adc_code, adc_thresholds, corners_of, hold_spread,
+                      loss_figures, path_name, pull_in_result, release_result, slow_hold_drive,
+                      worst)
 from .mechanics import armature_checks, armature_result
-from .result import (ActuationPoint, Design, DutyTable, HoldResult, SplitDecayResult,
-                     TimerResult)
+from .peak import plan_peak, shortest_peak_current
+from .regulation import HoldPlan, coil_power_at, solve_hold, table_lookup, table_supplies
+from .result import ActuationPoint, Design, DutyTable, HoldResult, SplitDecayResult, TimerResult
 from .timer import TimerSetting, solve_timer
-
-#: Entries in the supply-compensated duty table.
-DUTY_TABLE_ENTRIES = 16
+from .turnoff import turn_offs
 
 
 def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
@@ -50,59 +51,91 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     :func:`coildrive.design.montecarlo.monte_carlo`).
     """
     board = drive.board
-    grid = corner_grid(drive)
     timer = solve_timer(board.timer.clock, board.timer.bits, board.timer.prescaler_max,
                         drive.hold.frequency, drive.hold.frequency_tolerance,
                         board.timer.prescalers)
     f_hold = timer.frequency_hz
-    duty_exact, _ = required_duty(drive, grid.supply, grid.ambient, grid.r_factor, grid.l_factor,
-                                  f_hold)
-    compare = quantised_compare(drive, grid, duty_exact, timer)
-    duty = compare / timer.period_ticks
+    period = timer.period_ticks
+    plan = solve_hold(drive, timer)
+    env = plan.env
+    compare = plan.fixed_compare
+    duty = compare / period
+    d_low, d_high = plan.compare_low / period, plan.compare_high / period
+    at = dict(coil_temp=env.coil_temp, factors=env.factors())
 
-    # Pull-in at the settled temperatures, then the peak time from the worst corner.
-    first = evaluate(drive, grid.supply, grid.ambient, grid.r_factor, grid.l_factor, duty, f_hold, 0.0)
-    k_pull = worst(first.pull_in_time)
-    t_pull = float(first.pull_in_time[k_pull])
-    peak_ticks = peak_ticks_for(drive, t_pull)
-    peak_time = peak_ticks / board.tick.rate
-    res = evaluate(drive, grid.supply, grid.ambient, grid.r_factor, grid.l_factor, duty, f_hold,
-                   peak_time, reuse=first)
-    # Hold powers at every corner from the steady state the design already has (coil at
-    # its settled temperature there).
+    # Pull-in on the envelope (the hot coil at the lowest supply is the worst), then the
+    # peak by time and by force (design/peak.py).
+    first = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor, d_low, f_hold, 0.0, **at)
+    entry_res = table_args = None
+    code_low, code_high = (supply_codes(drive, env.supply) if board.supply_sense is not None
+                           else (np.zeros(len(env), int), np.zeros(len(env), int)))
+    if drive.pull_in.compensate:
+        volts, codes, design_v = table_supplies(drive)
+        m, tol = len(codes), plan.tol
+        hot = np.where(np.isfinite(plan.hot_temp), plan.hot_temp, drive.thermal.max_coil_temp)
+        t = tol.take(np.tile(np.arange(len(tol)), m))
+        entry_res = evaluate(drive, np.repeat(design_v, len(tol)), drive.ambient.max, t.r_factor,
+                             t.l_factor, duty, f_hold, 0.0, coil_temp=np.tile(hot, m),
+                             factors={"diode_factor": t.diode_factor, "fast_factor": t.fast_factor,
+                                      "sense_factor": t.sense_factor})
+        table_args = dict(table_codes=codes, table_volts=volts, table_design=design_v)
+    pk = plan_peak(drive, env, first, entry_res, code_low=code_low, code_high=code_high,
+                   **(table_args or {}))
+    short, long_ = pk.short_time, pk.long_time
+    # the weakest hold with the shortest peak; the most current with the longest
+    res_low = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor, d_low, f_hold,
+                       short, reuse=first, **at)
+    res = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor, d_high, f_hold,
+                   long_, reuse=first if np.array_equal(d_low, d_high) else None, **at)
     loss = _losses(drive, res, f_hold)
-    corners = corners_of(grid, res, loss)
+    corners = corners_of(env, res_low, loss, high=res)
     nom_grid = nominal_point(drive)
     nom = evaluate(drive, nom_grid.supply, nom_grid.ambient, nom_grid.r_factor, nom_grid.l_factor,
-                   duty, f_hold, peak_time)
+                   _nominal_duty(drive, plan, period), f_hold,
+                   0.0 if pk.ticks is None else pk.ticks / board.tick.rate)
     nominal = corners_of(nom_grid, nom, _losses(drive, nom, f_hold))[0]
     nominal = dataclasses.replace(nominal, label="nominal: " + nominal.label)
 
-    up = min(compare + 1, timer.period_ticks)
-    step = pwm_steady_state(up / timer.period_ticks, f_hold, res.loop.v_on, res.loop.r_on,
-                            res.loop.r_off, res.loop.v_off, res.loop.inductance).mean - res.hold.mean
+    up = np.minimum(plan.compare_low + 1, period)
+    step = pwm_steady_state(up / period, f_hold, res_low.loop.v_on, res_low.loop.r_on,
+                            res_low.loop.r_off, res_low.loop.v_off, res_low.loop.inductance).mean - res_low.hold.mean
+    k_hot = int(np.argmax(np.where(np.isfinite(plan.hot_temp), plan.hot_temp, np.inf)))
+    k_heat = int(plan.hot_point[k_hot])
+    spread = hold_spread(env, res_low)
+    k_max = worst(res.hold.mean)
+    spread.update(max_mean_current_a=float(res.hold.mean[k_max]), max_corner=env.label(k_max),
+                  ripple_a=float(max(np.max(res.hold.ripple), np.max(res_low.hold.ripple))),
+                  coil_power_w=coil_power_at(drive, plan, k_heat, f_hold, period),
+                  coil_temp_c=float(plan.hot_temp[k_hot]),
+                  hottest_corner=plan.heat.label(k_heat) + f", settles at {plan.hot_temp[k_hot]:.4g} degC",
+                  discontinuous_corners=int(np.sum(res_low.hold.dcm | res.hold.dcm)),
+                  coil_power_corner=plan.heat.label(k_heat))
     hold = HoldResult(
         mode=drive.hold.mode, current_a=drive.hold.current, frequency_hz=f_hold, duty=duty,
-        compare_ticks=compare, current_step_a=float(np.max(step)), **hold_spread(grid, res),
-        **loss_figures(drive, grid, loss),
-        split_decay_saving=_split_saving(drive, grid, timer, res, loss, duty, peak_time),
-    )
-    release = release_result(drive, grid, res)
-    pull_in = pull_in_result(drive, grid, res, k_pull, t_pull, peak_ticks)
+        compare_ticks=compare, current_step_a=float(np.max(step)), **spread,
+        **loss_figures(drive, env, loss), split_decay_saving=None,
+        regulation=drive.hold.regulation)
+    hold = dataclasses.replace(hold, split_decay_saving=_split_saving(drive, hold))
+    peak_end = np.asarray(res.peak_end_current, float)
+    thresholds = adc_thresholds(drive, res, res_low, hold.min_mean_current_a, env)
+    offs = turn_offs(drive, env, res, peak_end, thresholds.trip_current_a)
+    release = release_result(drive, env, res, offs)
+    pull_in = pull_in_result(drive, env, res, pk, shortest_peak_current(drive, res_low, short))
     timer_result = TimerResult(clock_hz=board.timer.clock, bits=board.timer.bits,
-                               prescaler=timer.prescaler, period_ticks=timer.period_ticks,
+                               prescaler=timer.prescaler, period_ticks=period,
                                compare_ticks=compare, frequency_hz=f_hold,
                                target_hz=drive.hold.frequency, frequency_error=timer.error)
-    thresholds = adc_thresholds(drive, res, hold.min_mean_current_a)
-    table = _duty_table(drive, grid, res.coil_temp, timer)
+    table = plan.table or DutyTable([], [], [])
 
-    checks = base_checks(drive, grid, res, pull_in, hold, release, timer_result, thresholds, timer)
-    split = _split_result(drive, timer, compare) if split_decay(drive) else None
+    checks = base_checks(drive, env, res_low, pull_in, hold, release, timer_result, thresholds, timer,
+                         plan_reachable=plan.reachable, high=res)
+    split = _split_result(drive, timer, int(np.min(plan.compare_low))) if split_decay(drive) else None
     arm = None
-    if res.armature is not None:
-        arm = armature_result(drive, grid, res)
-        checks += armature_checks(drive, grid, res, arm, release)
-    checks += loss_checks(drive, hold, loss, grid, split)
+    if res_low.armature is not None:
+        arm = armature_result(drive, env, res_low)
+        checks += armature_checks(drive, env, res_low, arm, release)
+    checks += loss_checks(drive, hold, loss, env, split)
+    checks += energy_checks(drive, release)
     notes = cautions(drive, hold, release)
     if arm is not None:
         notes.append(
@@ -110,9 +143,11 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
             "the current dip and the release on the bench before relying on the margins of a "
             "safety-relevant actuator (an armature that fails to release keeps the load engaged).")
     notes += loss_cautions(drive, hold, release, split)
+    peak_time = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate
     hold_time = max(2.0 * peak_time, 20.0 / f_hold)
     points = (plot_point(drive, "nominal", "nominal", nom, 0, hold_time),
-              plot_point(drive, "worst", "worst pull-in: " + grid.label(k_pull), res, k_pull, hold_time))
+              plot_point(drive, "worst", "worst pull-in: " + env.label(pk.k_pull), res_low, pk.k_pull,
+                         hold_time))
     mc = None
     if samples > 0:
         from .montecarlo import monte_carlo
@@ -120,8 +155,17 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     return Design(drive=drive, pull_in=pull_in, hold=hold, release=release, timer=timer_result,
                   adc=thresholds, duty_table=table, corners=corners, nominal=nominal,
                   checks=checks, cautions=notes, monte_carlo=mc,
-                  input_hash=drive.input_hash(), worst_corner_index=k_pull, armature=arm,
-                  split_decay=split, actuation_points=points)
+                  input_hash=drive.input_hash(), worst_corner_index=pk.k_pull, armature=arm,
+                  split_decay=split, actuation_points=points, peak_table=pk.table)
+
+
+def _nominal_duty(drive: Drive, plan: HoldPlan, period: int) -> float:
+    """The duty the firmware runs at the nominal supply (read without error)."""
+    if plan.table is None:
+        return plan.fixed_compare / period
+    b = drive.board
+    code = adc_code(drive.supply.nominal / b.supply_sense.divider, b.adc.reference, b.adc.bits)
+    return plan.table.compare_ticks[table_lookup(plan.table, code)] / period
 
 
 def plot_point(drive: Drive, name: str, label: str, res: PointResults, k: int,
@@ -136,8 +180,10 @@ def plot_point(drive: Drive, name: str, label: str, res: PointResults, k: int,
 def actuation(design: Design, supply: float, coil_temp: float, hold_time: float,
               r_factor: float = 1.0, l_factor: float = 1.0, points: int = 8, label: str = "",
               strict: bool = True):
-    """One actuation of ``design`` at one operating point (the fixed duty the timer makes):
-    a :class:`~coildrive.model.waveform.Waveform`. ``strict``: refuse a split-decay bypass
+    """One actuation of ``design`` at one operating point, as the firmware runs it there: the
+    fixed compare, or with the supply table the entry the firmware takes for the supply's
+    reading (and the peak table's entry with a compensated peak), a
+    :class:`~coildrive.model.waveform.Waveform`. ``strict``: refuse a split-decay bypass
     that would open during an off-time (the design's ``bypass_timing`` check fails it;
     the plot still draws it)."""
     from ..model.waveform import actuation as waveform
@@ -148,49 +194,9 @@ def actuation(design: Design, supply: float, coil_temp: float, hold_time: float,
                          f"{design.drive.freewheel.bypass_lead * 1e6:.4g} us is longer than the hold "
                          f"on-time ({s.on_time_counts / s.count_rate_hz * 1e6:.4g} us): the "
                          "bypass would open during an off-time")
-    return waveform(design.drive, supply, coil_temp, design.pull_in.peak_time_s, design.hold.duty,
-                    design.hold.frequency_hz, hold_time, r_factor, l_factor, points, label=label)
-
-
-def quantised_compare(drive: Drive, grid: CornerGrid, duty: float, timer: TimerSetting) -> int:
-    """Round the duty up to whole compare counts, adding counts until every corner holds."""
-    period = timer.period_ticks
-    if not math.isfinite(duty):
-        return period
-    compare = min(period, max(0, math.ceil(duty * period - 1e-9)))
-    while compare < period:
-        res = evaluate(drive, grid.supply, grid.ambient, grid.r_factor, grid.l_factor,
-                       compare / period, timer.frequency_hz, 0.0, mechanics=False)
-        if np.min(res.hold.mean) >= drive.hold.current:
-            break
-        compare += 1
-    return compare
-
-
-def _duty_table(drive: Drive, grid: CornerGrid, temps: np.ndarray, timer: TimerSetting,
-                entries: int = DUTY_TABLE_ENTRIES) -> DutyTable:
-    """Compare value against supply: the worst corner at each supply holds the current.
-
-    The coil temperatures are those of the lowest-supply corners (the hold current, and so
-    the coil power, stays about the same as the table compensates the supply).
-    """
-    adc = drive.board.adc
-    low = grid.supply == np.min(grid.supply)
-    amb, rf, lf = grid.ambient[low], grid.r_factor[low], grid.l_factor[low]
-    t = np.where(np.isfinite(temps[low]), temps[low], drive.thermal.max_coil_temp)
-    if drive.supply.max > drive.supply.min:
-        volts = np.linspace(drive.supply.min, drive.supply.max, entries)
-    else:
-        volts = np.array([drive.supply.min])
-    period = timer.period_ticks
-    # one vectorised bisection over (supply entry x low-supply corner)
-    lp = loop(drive, volts[:, None] + 0.0 * amb[None, :], t[None, :], rf[None, :], lf[None, :])
-    need = duty_for_mean(drive.hold.current, timer.frequency_hz, lp.v_on, lp.r_on, lp.r_off,
-                         lp.v_off, lp.inductance)
-    need_max = np.where(np.any(np.isnan(need), axis=1), 1.0, np.nanmax(np.nan_to_num(need, nan=1.0), axis=1))
-    compares = [int(min(period, math.ceil(d * period - 1e-9))) for d in need_max]
-    codes = [adc_code(v / drive.board.supply_sense.divider, adc.reference, adc.bits) for v in volts]
-    return DutyTable([float(v) for v in volts], codes, compares)
+    duty, peak = firmware_setting(design, supply)
+    return waveform(design.drive, supply, coil_temp, peak, duty, design.hold.frequency_hz, hold_time,
+                    r_factor, l_factor, points, label=label)
 
 
 def _losses(drive: Drive, res: PointResults, frequency: float) -> HoldLosses:
@@ -199,30 +205,28 @@ def _losses(drive: Drive, res: PointResults, frequency: float) -> HoldLosses:
     return hold_losses(drive, res.loop, res.hold, frequency, sw.rise_time, sw.fall_time)
 
 
-def _split_saving(drive: Drive, grid: CornerGrid, timer: TimerSetting, res: PointResults,
-                  loss: HoldLosses, duty: float, peak_time: float) -> dict | None:
-    """What split decay would save when the hold takes a fast-decay path without it: the
-    same design (frequency, peak) with the slow hold path, its duty solved again.
-
-    ``None`` with a plain diode path (already slow) or with split decay fitted.
-    """
+def _split_saving(drive: Drive, hold: HoldResult) -> dict | None:
+    """What split decay would change when the hold takes a fast-decay path without it: the
+    same drive designed again with the slow hold path (an ideal bypass), compared with
+    ``hold``. ``None`` with a plain diode path (already slow) or with split decay fitted."""
     fw = drive.freewheel
     if fw.type == "diode" or split_decay(drive):
         return None
-    slow, assumed = slow_hold_drive(drive)
-    f_hold = timer.frequency_hz
-    # The duty iteration climbs to the smallest self-consistent duty from below, so
-    # stopping it early (within a quarter count) gives a duty at or below it; the compare
-    # is then rounded up and raised until every corner holds, which lands on the same
-    # count as the exact duty would (the tests compare with a full split-decay design).
-    d_low, _ = required_duty(slow, grid.supply, grid.ambient, grid.r_factor, grid.l_factor, f_hold,
-                             tol=0.25 / timer.period_ticks)
-    compare = quantised_compare(slow, grid, d_low, timer)
-    d_slow = compare / timer.period_ticks
-    rs = evaluate(slow, grid.supply, grid.ambient, grid.r_factor, grid.l_factor, d_slow, f_hold,
-                  peak_time, mechanics=False)
-    ls = _losses(slow, rs, f_hold)
-    return saving_figures(drive, res, loss, duty, rs, ls, d_slow, compare, assumed)
+    slow_drive, assumed = slow_hold_drive(drive)
+    slow = design(slow_drive).hold
+    fast_element = {"zener": "zener", "resistor": "resistor", "clamp": "clamp"}[fw.type]
+    return {
+        "freewheel_power_w": hold.freewheel_power_w - slow.freewheel_power_w,
+        "fast_element": fast_element,
+        "fast_element_power_w": hold.freewheel_elements_w.get(fast_element, 0.0),
+        "freewheel_power_split_w": slow.freewheel_power_w,
+        "coil_power_change_w": slow.coil_power_w - hold.coil_power_w,
+        "switch_power_change_w": slow.switch_power_w - hold.switch_power_w,
+        "duty_split": slow.duty, "compare_ticks_split": slow.compare_ticks,
+        "duty_change": slow.duty - hold.duty,
+        "ripple_split_a": slow.ripple_a, "ripple_change_a": slow.ripple_a - hold.ripple_a,
+        "assumed_diode_drop_v": ASSUMED_DIODE_DROP if assumed else None,
+    }
 
 
 def _split_result(drive: Drive, timer: TimerSetting, compare: int) -> SplitDecayResult:

@@ -12,8 +12,10 @@ def plot_design(d: Design, waveforms: dict) -> bytes:
     ``waveforms``: the actuations to draw by name, as
     :func:`coildrive.design.design_waveforms` makes them (``"worst"`` gives the phases).
     """
+    peak = ("pull-in not reached" if d.pull_in.peak_time_s is None else
+            f"peak {d.pull_in.peak_time_s * 1e3:.3g} ms")
     title = (f"{d.drive.name} on {d.drive.board.name}: duty {d.hold.duty:.3f} at "
-             f"{d.hold.frequency_hz / 1e3:.4g} kHz, peak {d.pull_in.peak_time_s * 1e3:.3g} ms")
+             f"{d.hold.frequency_hz / 1e3:.4g} kHz ({d.hold.regulation}), {peak}")
     return _plot(d, waveforms, "worst", title)
 
 

@@ -21,33 +21,84 @@ def summary_table(d: Design) -> Table:
     t.add_column("figure")
     t.add_column("value", justify="right")
     t.add_column("where / how")
-    p, h, r, tm, a = d.pull_in, d.hold, d.release, d.timer, d.adc
-    rows = [
-        ("pull-in time (worst)", _ms(p.time_s), f"to {p.current_a:.4g} A at {p.worst_corner}"),
-        ("peak phase", _ms(p.peak_time_s), f"{p.peak_ticks} ticks = worst x {p.margin:g}, +1 tick"),
-        ("current at end of peak", f"<= {p.peak_end_current_max_a:.4g} A", "highest corner"),
+    h, r, tm, a = d.hold, d.release, d.timer, d.adc
+    rows = [*_tolerance_rows(d), *_pull_in_rows(d),
         ("hold frequency", format_si(h.frequency_hz, "Hz", 6),
          f"prescaler {tm.prescaler}, period {tm.period_ticks} counts ({tm.frequency_error:+.3%})"),
-        ("hold duty", f"{h.duty:.4f}", f"compare {tm.compare_ticks}; 1 count = {h.current_step_a * 1e3:.3g} mA"),
+        ("hold regulation", h.regulation.replace("_", " "), _regulation_how(d)),
+        ("hold duty", f"{h.duty:.4f}", f"compare {tm.compare_ticks}; 1 count = {h.current_step_a * 1e3:.3g} mA"
+         + ("; the table's first entry (safe at every supply)" if h.regulation == "supply_table" else "")),
         ("hold mean current", f"{h.min_mean_current_a:.4g} .. {h.max_mean_current_a:.4g} A",
-         f"min at {h.min_corner}"),
+         f"min at {h.min_corner}; max at {h.max_corner}"),
         ("hold ripple (p-p)", f"<= {h.ripple_a * 1e3:.4g} mA",
          f"{h.discontinuous_corners} corner(s) discontinuous" if h.discontinuous_corners else "continuous conduction"),
-        ("coil power / temperature", f"{h.coil_power_w:.3g} W / {h.coil_temp_c:.1f} degC",
-         f"hottest at {h.hottest_corner}"),
+        ("coil power / temperature", f"{h.coil_power_w:.3g} W / " + (f"{h.coil_temp_c:.1f} degC"
+                                                                     if h.coil_temp_c == h.coil_temp_c and h.coil_temp_c < 1e300 else "runaway"),
+         f"hottest coil, both at {h.coil_power_corner or h.hottest_corner}"),
         *_loss_rows(d),
         ("release time", _ms(r.time_s), f"to {r.dropout_current_a:.4g} A via {r.freewheel}; zero after {_ms(r.zero_time_s)}"),
+        *_turn_off_rows(d),
         ("peak switch voltage", f"{r.peak_switch_voltage_v:.4g} V",
-         f"limit {r.switch_limit_v:.4g} V ({r.switch_rating_v:.4g} V rating, derated)"),
-        ("energy per release", format_si(r.energy_j, "J"), "into the freewheel element"),
+         f"every turn-off; limit {r.switch_limit_v:.4g} V ({r.switch_rating_v:.4g} V rating, derated)"),
         ("ADC thresholds", f"{a.pull_in_code}/{a.hold_code}/{a.over_current_code}/{a.open_load_code}",
-         "pull-in / hold / over-current / open-load codes"),
+         f"pull-in / hold / over-current ({a.over_current_a:.4g} A, above {a.healthy_max_current_a:.4g} A "
+         f"healthy at {a.healthy_max_corner}) / open-load codes"),
     ]
     if d.armature is not None:
         rows = _armature_rows(d, rows)
     for row in rows:
         t.add_row(*(escape(c) for c in row))
     return t
+
+
+def _tolerance_rows(d: Design) -> list:
+    """The tolerances beyond the coil's R and L, where the files give them."""
+    b, fw = d.drive.board, d.drive.freewheel
+    given = [("diode drop", fw.diode_drop_tolerance), ("Zener voltage", fw.zener_voltage_tolerance),
+             ("clamp voltage", fw.clamp_voltage_tolerance), ("sense resistor", b.sense.resistance_tolerance),
+             ("sense gain", b.sense.gain_tolerance),
+             ("supply divider", b.supply_sense.divider_tolerance if b.supply_sense else 0.0)]
+    parts = [f"{name} +/-{t:.3g}" for name, t in given if t > 0]
+    return [("tolerances", ", ".join(parts), "both ends are corners of the envelope")] if parts else []
+
+
+def _pull_in_rows(d: Design) -> list:
+    """Pull-in and the peak: both margins, or what is not reached, where and why."""
+    p = d.pull_in
+    if p.peak_ticks is None:
+        return [("pull-in", "not reached", p.not_reached or "")]
+    force = (f"{p.current_margin:g} x pull-in = {p.force_current_a:.4g} A by the shortest peak "
+             f"({p.peak_ticks - 1} ticks): {p.shortest_peak_current_a:.4g} A at {p.force_corner}"
+             if p.force_time_s is not None else
+             f"{p.current_margin:g} x pull-in = {p.force_current_a:.4g} A not reached at {p.force_corner}")
+    return [
+        ("pull-in time (worst)", _ms(p.time_s), f"to {p.current_a:.4g} A at {p.worst_corner}"),
+        ("peak phase", _ms(p.peak_time_s),
+         f"{p.peak_ticks} ticks, set by the {p.governed_by}"
+         + ("; looked up against the supply (the longest entry)" if p.compensated else "")),
+        ("  time margin", f"x{p.margin:g}", f"{p.time_margin_ticks} ticks = worst pull-in x {p.margin:g}, +1 tick"),
+        ("  force margin", f"x{p.current_margin:g} current", force
+         + (f"; + settle {_ms(p.settle_time_s)}" if p.settle_time_s > 0 else "")),
+        ("current at end of peak", f"<= {p.peak_end_current_max_a:.4g} A", f"at {p.peak_end_corner}"),
+    ]
+
+
+def _regulation_how(d: Design) -> str:
+    h = d.hold
+    if h.regulation == "supply_table":
+        t = d.duty_table
+        return (f"{len(t.adc_codes)} entries, compare {min(t.compare_ticks)}..{max(t.compare_ticks)}, "
+                "each at the lowest supply that reads its code")
+    if h.regulation == "current":
+        return "current-mode thresholds (table below)"
+    return "one compare value at every supply"
+
+
+def _turn_off_rows(d: Design) -> list:
+    """Every turn-off: its current, switch voltage and energy (worst corners)."""
+    return [(f"turn-off: {o['event']}", format_si(o["energy_j"], "J"),
+             f"from {o['current_a']:.4g} A ({o['current_corner']}); switch {o['switch_voltage_v']:.4g} V")
+            for o in d.release.turn_offs]
 
 
 def _loss_rows(d: Design) -> list:

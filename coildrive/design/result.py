@@ -174,15 +174,39 @@ class ArmatureResult:
 
 @dataclass(frozen=True)
 class PullInResult:
-    """Pull-in: worst-corner time to the pull-in current and the chosen peak duration."""
+    """Pull-in: worst-corner time to the pull-in current and the chosen peak duration.
+
+    The peak is the longest of: the worst pull-in time x ``margin`` (``time_margin_ticks``),
+    and the time the shortest real peak (``peak_ticks - 1`` ticks: a tick-based phase may
+    start anywhere in a tick) needs to carry ``current_margin`` x the pull-in current
+    (``force_current_a``) at the worst corner, plus ``settle_time_s``
+    (``force_margin_ticks``); ``governed_by`` names which. ``shortest_peak_current_a`` is
+    the current at the end of the shortest real peak at ``force_corner``. Where the
+    current is never reached, the times and ticks are ``None`` and ``not_reached`` says
+    what is not reached where and why. ``compensated``: the peak is looked up against the
+    supply (``Design.peak_table``); ``peak_ticks`` is then its longest entry.
+    """
 
     current_a: float
-    time_s: float
+    time_s: float | None
     worst_corner: str
     margin: float
-    peak_time_s: float
-    peak_ticks: int
+    peak_time_s: float | None
+    peak_ticks: int | None
     peak_end_current_max_a: float
+    peak_end_corner: str = ""
+    current_margin: float = 1.0
+    force_current_a: float = 0.0
+    force_time_s: float | None = None
+    force_corner: str = ""
+    settle_time_s: float = 0.0
+    time_margin_ticks: int | None = None
+    force_margin_ticks: int | None = None
+    governed_by: str = ""
+    shortest_peak_s: float | None = None
+    shortest_peak_current_a: float | None = None
+    compensated: bool = False
+    not_reached: str | None = None
 
 
 @dataclass(frozen=True)
@@ -223,6 +247,8 @@ class HoldResult:
     split_decay_saving: dict | None = None
     current_mode: CurrentModeResult | None = None
     thresholds: Thresholds | None = None
+    regulation: str = "fixed"
+    coil_power_corner: str = ""
 
 
 @dataclass(frozen=True)
@@ -260,6 +286,8 @@ class ReleaseResult:
     switch_limit_v: float
     switch_rating_v: float
     energy_j: float
+    turn_offs: list = field(default_factory=list)
+    worst_turn_off: str = ""
 
 
 @dataclass(frozen=True)
@@ -290,6 +318,11 @@ class AdcThresholds:
     open_load_a: float
     supply_min_code: int
     supply_max_code: int
+    healthy_max_current_a: float = 0.0
+    healthy_max_corner: str = ""
+    trip_current_a: float = 0.0
+    reading_low: float = 1.0
+    reading_high: float = 1.0
 
 
 @dataclass(frozen=True)
@@ -303,6 +336,19 @@ class DutyTable:
     supply_v: list[float]
     adc_codes: list[int]
     compare_ticks: list[int]
+    design_supply_v: list[float] = field(default_factory=list)
+
+
+@dataclass(frozen=True)
+class PeakTable:
+    """Supply-compensated peak: scheduler ticks for each supply-sense ADC code (ascending),
+    looked up like the duty table. ``design_supply_v`` is the lowest bus voltage that can
+    read each code (the divider at its tolerance end), where each entry pulls in."""
+
+    supply_v: list[float]
+    adc_codes: list[int]
+    peak_ticks: list[int]
+    design_supply_v: list[float] = field(default_factory=list)
 
 
 @dataclass(frozen=True)
@@ -325,6 +371,7 @@ class Design:
     input_hash: str = ""
     worst_corner_index: int = 0
     actuation_points: tuple = ()
+    peak_table: PeakTable | None = None
     armature: ArmatureResult | None = None
     split_decay: SplitDecayResult | None = None
 
@@ -361,6 +408,8 @@ class Design:
             out["armature"] = asdict(self.armature)
         if self.split_decay is not None:
             out["split_decay"] = asdict(self.split_decay)
+        if self.peak_table is not None:
+            out["peak_table"] = asdict(self.peak_table)
         if current_mode is not None:
             out["current_mode"] = current_mode
         if self.monte_carlo is not None:

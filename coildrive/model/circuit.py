@@ -71,7 +71,9 @@ class Loop:
 
     Units: V, ohm, H. ``r_coil`` is the copper alone (it is what heats the coil).
     ``bypassed`` is True for the slow path of a split-decay hold (the bypass switch
-    shorts the fast element; see the module docstring).
+    shorts the fast element; see the module docstring). ``v_diode`` and ``v_fast`` are
+    the freewheel diode's drop and the fast element's voltage (Zener or clamp) at each
+    point -- their tolerance corners; ``None``: the drive's values.
     """
 
     v_on: np.ndarray
@@ -82,15 +84,28 @@ class Loop:
     r_coil: np.ndarray
     supply: np.ndarray
     bypassed: bool = False
+    v_diode: np.ndarray | None = None
+    v_fast: np.ndarray | None = None
+
+    def diode(self, drive: Drive):
+        """The freewheel diode's drop at each point (V)."""
+        return drive.freewheel.diode_drop if self.v_diode is None else self.v_diode
+
+    def fast(self, drive: Drive):
+        """The fast element's voltage at each point: the Zener's, or the clamp's (V)."""
+        fw = drive.freewheel
+        if self.v_fast is None:
+            return fw.clamp_voltage if fw.type == "clamp" else fw.zener_voltage
+        return self.v_fast
 
     def switch_voltage(self, drive: Drive, current):
         """Switch (drain) voltage in V right after turning off ``current`` A."""
         fw = drive.freewheel
         if self.bypassed:
-            return self.supply + fw.diode_drop + fw.bypass_resistance * np.asarray(current)
+            return self.supply + self.diode(drive) + fw.bypass_resistance * np.asarray(current)
         if fw.type == "clamp":
-            return np.broadcast_to(np.asarray(fw.clamp_voltage, float), np.shape(current)) + 0.0
-        return self.supply + fw.diode_drop + fw.zener_voltage + fw.resistance * np.asarray(current)
+            return np.broadcast_to(np.asarray(self.fast(drive), float), np.shape(current)) + 0.0
+        return self.supply + self.diode(drive) + self.fast(drive) + fw.resistance * np.asarray(current)
 
 
 def split_decay(drive: Drive) -> bool:
@@ -99,11 +114,14 @@ def split_decay(drive: Drive) -> bool:
     return drive.freewheel.split_decay and drive.freewheel.type != "diode"
 
 
-def loop(drive: Drive, supply, coil_temp, r_factor=1.0, l_factor=1.0, path: str = "hold") -> Loop:
+def loop(drive: Drive, supply, coil_temp, r_factor=1.0, l_factor=1.0, path: str = "hold",
+         diode_factor=1.0, fast_factor=1.0, sense_factor=1.0) -> Loop:
     """Loop parameters for supply V, coil temperature degC and tolerance factors.
 
     ``r_factor``/``l_factor`` multiply the nominal coil resistance/inductance
-    (1.07 = +7 % tolerance corner). ``path`` picks the freewheel path: ``"hold"`` the
+    (1.07 = +7 % tolerance corner); ``diode_factor``, ``fast_factor`` and
+    ``sense_factor`` the diode drop, the Zener or clamp voltage and the sense resistance
+    (their tolerance corners). ``path`` picks the freewheel path: ``"hold"`` the
     one the PWM off-times take, ``"release"`` the one of the final turn-off; they differ
     only with split decay (:func:`split_decay`). ``inductance`` is ``coil.inductance``, or with an
     ``[armature]`` its seated value ``inductance_closed`` (the armature model itself
@@ -114,29 +132,32 @@ def loop(drive: Drive, supply, coil_temp, r_factor=1.0, l_factor=1.0, path: str 
     fw = drive.freewheel
     supply = np.asarray(supply, float)
     r_coil = copper_resistance(coil.resistance, coil.reference_temp, coil_temp) * r_factor
-    r_on = r_coil + drive.switch.on_resistance + sense.resistance
+    r_sense = sense.resistance * np.asarray(sense_factor, float)
+    v_diode = fw.diode_drop * np.asarray(diode_factor, float)
+    v_fast = (fw.clamp_voltage if fw.type == "clamp" else fw.zener_voltage) * np.asarray(fast_factor, float)
+    r_on = r_coil + drive.switch.on_resistance + r_sense
     if path not in ("hold", "release"):
         raise ValueError(f"path {path!r}: expected 'hold' or 'release'")
     bypassed = path == "hold" and split_decay(drive)
-    r_sense_off = sense.resistance if sense.position == "coil" else 0.0
+    r_sense_off = r_sense if sense.position == "coil" else 0.0
     if bypassed:
         r_off = r_coil + r_sense_off + fw.bypass_resistance
-        v_off = np.full_like(supply, fw.diode_drop)
+        v_off = v_diode + 0.0 * supply
     else:
         r_off = r_coil + r_sense_off + fw.resistance
         if fw.type == "clamp":
-            v_off = fw.clamp_voltage - supply
+            v_off = v_fast - supply
         else:
-            v_off = np.full_like(supply, fw.diode_drop + fw.zener_voltage)
+            v_off = v_diode + v_fast + 0.0 * supply
     # With a moving armature the switched segments that use Loop.inductance (the PWM hold,
     # the release until the armature lets go) all have it seated: the closed inductance.
     base = coil.inductance if drive.armature is None else drive.armature.inductance_closed
     inductance = base * np.asarray(l_factor, float)
-    arrays = np.broadcast_arrays(supply, r_on, r_off, v_off, inductance, r_coil)
+    arrays = np.broadcast_arrays(supply, r_on, r_off, v_off, inductance, r_coil, v_diode, v_fast)
     # read-only broadcast views: no copies of scalars spread over many points
-    supply, r_on, r_off, v_off, inductance, r_coil = arrays
+    supply, r_on, r_off, v_off, inductance, r_coil, v_diode, v_fast = arrays
     return Loop(v_on=supply, r_on=r_on, r_off=r_off, v_off=v_off, inductance=inductance,
-                r_coil=r_coil, supply=supply, bypassed=bypassed)
+                r_coil=r_coil, supply=supply, bypassed=bypassed, v_diode=v_diode, v_fast=v_fast)
 
 
 def freewheel_element_energy(drive: Drive, lp: Loop, charge, square):
@@ -149,7 +170,7 @@ def freewheel_element_energy(drive: Drive, lp: Loop, charge, square):
     """
     fw = drive.freewheel
     if lp.bypassed:
-        return fw.diode_drop * np.asarray(charge) + fw.bypass_resistance * np.asarray(square)
+        return lp.diode(drive) * np.asarray(charge) + fw.bypass_resistance * np.asarray(square)
     if fw.type == "clamp":
-        return fw.clamp_voltage * np.asarray(charge)
-    return (fw.diode_drop + fw.zener_voltage) * np.asarray(charge) + fw.resistance * np.asarray(square)
+        return lp.fast(drive) * np.asarray(charge)
+    return (lp.diode(drive) + lp.fast(drive)) * np.asarray(charge) + fw.resistance * np.asarray(square)

@@ -132,8 +132,10 @@ def element_powers(drive: Drive, lp: Loop, charge_on, square_on, charge_off, squ
     r_sense = sense.resistance
     sense_p = r_sense * (s_on + (s_off if sense.position == "coil" else 0.0))
     cond = drive.switch.on_resistance * s_on
-    vd = fw.diode_drop if diode_drop is None else diode_drop
-    vz = fw.zener_voltage if zener_voltage is None else zener_voltage
+    vd = lp.diode(drive) if diode_drop is None and hasattr(lp, "diode") else (
+        fw.diode_drop if diode_drop is None else diode_drop)
+    vz = lp.fast(drive) if zener_voltage is None and hasattr(lp, "fast") and fw.type == "zener" else (
+        fw.zener_voltage if zener_voltage is None else zener_voltage)
     rf = fw.resistance if resistance is None else resistance
     bypass_p = zero
     if bypassed:
@@ -143,8 +145,9 @@ def element_powers(drive: Drive, lp: Loop, charge_on, square_on, charge_off, squ
         v_turn_off = lp.supply + vd + r_bp * i_max
     elif clamp:
         diode_p, zener_p, res_p = zero, zero, zero
-        clamp_p = fw.clamp_voltage * q_off
-        v_turn_off = np.full_like(q_on, fw.clamp_voltage)
+        v_clamp = lp.fast(drive) if hasattr(lp, "fast") else fw.clamp_voltage
+        clamp_p = v_clamp * q_off
+        v_turn_off = v_clamp + 0.0 * q_on
     else:
         diode_p, zener_p, res_p = vd * q_off, vz * q_off, rf * s_off
         clamp_p = zero

@@ -1,0 +1,149 @@
+"""The peak phase: how long full-on must last, sized by time and by force.
+
+A margin on time alone is not a margin on force: near the end of the rise the current
+creeps towards ``V/R``, so 1.5x the time to the pull-in current may carry barely more
+current -- and the magnetic force grows with the square of the current. So the peak is
+the longest of
+
+* the worst pull-in time x ``pull_in.margin`` (whole ticks, plus one: a tick-based phase
+  may start anywhere inside a tick, so the shortest real peak is one tick shorter);
+* the time the *shortest real peak* (``ticks - 1``) needs to carry
+  ``pull_in.current_margin`` x the pull-in current at the worst corner (the hot coil at
+  the lowest supply), plus ``pull_in.settle_time``.
+
+With an ``[armature]`` the pull-in time is the seat time of the moving-armature model,
+and the force margin is taken on the rise with the armature still open (the inductance
+before it moves).
+
+A supply-compensated peak (``pull_in.compensate``) does the same for each entry of a
+table against the measured supply (:class:`~coildrive.design.result.PeakTable`), each
+entry at the lowest bus voltage that can read its code. Where the current is never
+reached, the plan says what is not reached, where and why, and gives no ticks.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..config import Drive
+from ..model.rl import rise_current, rise_time
+from .corners import CornerGrid
+from .evaluate import PointResults
+from .figures import worst
+from .result import PeakTable
+
+
+@dataclass(frozen=True)
+class PeakPlan:
+    """The sized peak. ``ticks`` (``None`` when the pull-in current is never reached);
+    per grid point the shortest and the longest real peak the firmware may run there
+    (s); the time and force requirements and where they came from."""
+
+    ticks: int | None
+    time_margin_ticks: int | None
+    force_margin_ticks: int | None
+    t_pull: float
+    k_pull: int
+    t_force: float
+    k_force: int
+    force_current: float
+    short_time: np.ndarray
+    long_time: np.ndarray
+    table: PeakTable | None
+    not_reached: str | None
+    governed_by: str
+
+
+def _ticks(seconds: float, rate: float) -> int | None:
+    """Whole ticks for a phase of at least ``seconds`` however the tick falls: ``ceil + 1``."""
+    if not math.isfinite(seconds):
+        return None
+    return math.ceil(seconds * rate - 1e-9) + 1
+
+
+def force_times(drive: Drive, res: PointResults) -> tuple[np.ndarray, float]:
+    """Time (s) from switch-on to ``current_margin`` x the pull-in current at each point
+    (``inf`` where never reached), with the armature open when there is one; and that
+    current (A)."""
+    lp = res.loop
+    i_force = drive.pull_in.current_margin * drive.pull_in.current
+    ind = lp.inductance
+    if drive.armature is not None:
+        ind = drive.armature.inductance_open * res.l_factor
+    return rise_time(i_force, 0.0, lp.v_on, lp.r_on, ind), i_force
+
+
+def requirement(drive: Drive, t_pull: np.ndarray, t_force: np.ndarray) -> tuple[int | None, int | None, int | None]:
+    """``(ticks, time-margin ticks, force-margin ticks)`` for pull-in times and force
+    times over points (their worst)."""
+    rate = drive.board.tick.rate
+    tp = float(np.max(np.where(np.isnan(t_pull), np.inf, t_pull)))
+    tf = float(np.max(np.where(np.isnan(t_force), np.inf, t_force)))
+    by_time = _ticks(tp * drive.pull_in.margin, rate)
+    by_force = _ticks(tf + drive.pull_in.settle_time, rate)
+    if by_time is None:
+        return None, None, by_force
+    return max(by_time, by_force or 0), by_time, by_force
+
+
+def plan_peak(drive: Drive, grid: CornerGrid, first: PointResults, entry_results=None,
+              table_codes=None, table_volts=None, table_design=None, code_low=None,
+              code_high=None) -> PeakPlan:
+    """Size the peak from ``first`` (the points evaluated with no peak end). With a
+    compensated peak, ``entry_results`` are the table entries' points (entries x
+    tolerance corners, hot coil, flattened entry-major), ``code_low``/``code_high`` the
+    readings at each grid point."""
+    rate = drive.board.tick.rate
+    t_pull = np.asarray(first.pull_in_time, float)
+    k_pull = worst(t_pull)
+    tf_all, i_force = force_times(drive, first)
+    k_force = worst(tf_all)
+    ticks, by_time, by_force = requirement(drive, t_pull, tf_all)
+    not_reached = None
+    lp = first.loop
+    if ticks is None:
+        i_inf = lp.v_on / lp.r_on
+        k = int(np.argmin(i_inf))
+        not_reached = (f"not reached: steady current {float(i_inf[k]):.4g} A < pull-in "
+                       f"{drive.pull_in.current:.4g} A at {grid.label(k)}")
+        if drive.armature is not None and math.isfinite(float(i_inf[k])) and i_inf[k] > drive.pull_in.current:
+            not_reached = (f"not reached: the armature does not seat at {grid.label(k_pull)} "
+                           "(see the armature_seats check)")
+    governed = "" if ticks is None else ("force margin" if (by_force or 0) > (by_time or 0) else "time margin")
+    table = None
+    n = len(grid)
+    if ticks is not None and entry_results is not None:
+        m = len(table_codes)
+        tp_e = np.asarray(entry_results.pull_in_time, float).reshape(m, -1)
+        tf_e, _ = force_times(drive, entry_results)
+        tf_e = np.asarray(tf_e, float).reshape(m, -1)
+        entries = [requirement(drive, tp_e[i], tf_e[i])[0] for i in range(m)]
+        if all(e is not None for e in entries):
+            table = PeakTable([float(v) for v in table_volts], [int(c) for c in table_codes],
+                              [int(e) for e in entries], [float(v) for v in table_design])
+            ticks = max(entries)
+    if ticks is None:
+        short = long_ = np.zeros(n)
+    elif table is not None:
+        ent = np.asarray(table.peak_ticks)
+        codes = np.asarray(table.adc_codes)
+        k_hi = np.clip(np.searchsorted(codes, code_high, side="right") - 1, 0, len(codes) - 1)
+        k_lo = np.clip(np.searchsorted(codes, code_low, side="right") - 1, 0, len(codes) - 1)
+        short = (ent[k_hi] - 1) / rate
+        long_ = ent[k_lo] / rate
+    else:
+        short = np.full(n, (ticks - 1) / rate)
+        long_ = np.full(n, ticks / rate)
+    return PeakPlan(ticks, by_time, by_force, float(t_pull[k_pull]), k_pull, float(tf_all[k_force]),
+                    k_force, i_force, short, long_, table, not_reached, governed)
+
+
+def shortest_peak_current(drive: Drive, res: PointResults, short_time: np.ndarray) -> np.ndarray:
+    """Current (A) at the end of the shortest real peak at each point (plain RL rise; with
+    an armature the open inductance, before it moves)."""
+    lp = res.loop
+    ind = lp.inductance if drive.armature is None else drive.armature.inductance_open * res.l_factor
+    return rise_current(short_time, 0.0, lp.v_on, lp.r_on, ind)
