@@ -9,7 +9,7 @@ import pytest
 
 from conftest import EXAMPLES, json_error, run_cli
 
-DEMO_TEXT = (EXAMPLES / "demo-valve.toml").read_text()
+DEMO_TEXT = (EXAMPLES / "reagent-valve-zener-24v.toml").read_text()  # no [freewheel] of its own
 
 
 def _variant(tmp_path, old: str, new: str, name: str = "valve.toml"):
@@ -43,7 +43,9 @@ def test_design_json_has_contract_keys(demo_drive):
             assert part in node, f"{path} missing from design JSON"
             node = node[part]
         assert isinstance(node, (int, float)), path
-    assert len(d["corners"]) == 24  # 3 supplies x 2 ambients x 2 R x 2 L
+    # the envelope: 3 supplies x 2 ambients x 2 coil temperatures (cold, hot) x 2 R x 2 L
+    assert len(d["corners"]) == 48
+    assert d["hold"]["regulation"] == "supply_table"
     for key in ["supply_v", "coil_temp_c", "resistance_ohm", "inductance_h", "pull_in_time_s",
                 "hold_mean_current_a", "hold_ripple_a", "release_time_s", "peak_switch_voltage_v",
                 "release_energy_j"]:
@@ -68,7 +70,7 @@ def test_header_is_reproducible(tmp_path, demo_drive):
     assert run_cli("design", str(demo_drive), "--header", str(a)).returncode == 0
     # the same inputs with other formatting and comments give the same header
     reformatted = tmp_path / "demo-valve.toml"
-    reformatted.write_text("# another comment\n" + DEMO_TEXT.replace('"22 ohm"', "22.0")
+    reformatted.write_text("# another comment\n" + demo_drive.read_text().replace('"22 ohm"', "22.0")
                            .replace('board = "lab-m32-zener"', "board='lab-m32-zener'"))
     assert run_cli("design", str(reformatted), "--header", str(b)).returncode == 0
     assert a.read_text() == b.read_text()

@@ -60,8 +60,13 @@ def unit(tmp_path_factory) -> Path:
         lines += [f"#define {prefix.upper()}_STREAM_SINGLE_CONTEXT", f'#include "{prefix}_stream.c"',
                   f"{prefix}_stream_t {prefix}_state;"]
     for k, (example, board) in enumerate(COMBOS):
-        # The CLI writes no header for a failing design, but its C must be valid all the same.
-        (folder / f"d{k}.h").write_text(generate_header(design(load_drive(example, board.stem)), prefix=f"D{k}"))
+        # The CLI writes no header for a failing design, but its C must be valid all the same --
+        # except where the pull-in current is never reached: there is no peak, and the
+        # header stops the build on purpose (tests/test_header.py checks that #error).
+        d = design(load_drive(example, board.stem))
+        if d.pull_in.peak_ticks is None:
+            continue
+        (folder / f"d{k}.h").write_text(generate_header(d, prefix=f"D{k}"))
         lines.append(f'#include "d{k}.h"')
     (folder / "all.c").write_text("\n".join(lines) + "\n")
     return folder

@@ -37,11 +37,22 @@ int main(void)
     printf("hold_code %lu\n", (unsigned long)P_ADC_HOLD_CODE);
     printf("over_current_code %lu\n", (unsigned long)P_ADC_OVER_CURRENT_CODE);
     printf("open_load_code %lu\n", (unsigned long)P_ADC_OPEN_LOAD_CODE);
+    printf("regulation %lu\n", (unsigned long)P_HOLD_REGULATION);
+#if P_HOLD_REGULATION == P_REGULATION_SUPPLY_TABLE
     for (k = 0U; k < P_DUTY_TABLE_LEN; ++k) {
         printf("table %lu %lu\n", (unsigned long)p_duty_table_adc[k], (unsigned long)p_duty_table_compare[k]);
     }
     printf("lookup_low %lu\n", (unsigned long)p_hold_compare_for_supply(0U));
     printf("lookup_high %lu\n", (unsigned long)p_hold_compare_for_supply(P_ADC_MAX_CODE));
+#endif
+#if P_PEAK_COMPENSATED
+    for (k = 0U; k < P_PEAK_TABLE_LEN; ++k) {
+        printf("peaks %lu %lu\n", (unsigned long)p_peak_table_adc[k], (unsigned long)p_peak_table_ticks[k]);
+    }
+    printf("peak_low %lu\n", (unsigned long)p_peak_ticks_for_supply(0U));
+    printf("peak_high %lu\n", (unsigned long)p_peak_ticks_for_supply(P_ADC_MAX_CODE));
+#endif
+    (void)k;
     return 0;
 }
 """
@@ -57,11 +68,11 @@ def _compile_and_run(tmp_path, header_text: str, compiler: str, std: str, source
                        capture_output=True, text=True)
     assert r.returncode == 0, f"{compiler} -std={std}: {r.stderr}"
     out = subprocess.run([str(exe)], capture_output=True, text=True, check=True).stdout
-    values: dict = {"table": []}
+    values: dict = {"table": [], "peaks": []}
     for line in out.splitlines():
         parts = line.split()
-        if parts[0] == "table":
-            values["table"].append((int(parts[1]), int(parts[2])))
+        if parts[0] in ("table", "peaks"):
+            values[parts[0]].append((int(parts[1]), int(parts[2])))
         else:
             values[parts[0]] = int(parts[1])
     return values
@@ -76,6 +87,14 @@ def test_header_compiles_and_matches_design(tmp_path, example, board):
     # for every combination all the same (a failed check is physics, not syntax).
     d = design(load_drive(EXAMPLES / f"{example}.toml", board))
     text = generate_header(d, prefix="P")
+    if d.pull_in.peak_ticks is None:
+        # no peak (the pull-in current is never reached): the header stops the build
+        (tmp_path / "drive.h").write_text(text)
+        (tmp_path / "m.c").write_text(PRINTER)
+        r = subprocess.run(["gcc", "-std=c99", *FLAGS, str(tmp_path / "m.c"), "-o", str(tmp_path / "m")],
+                           capture_output=True, text=True)
+        assert r.returncode != 0 and "peak phase shorter than one tick" in r.stderr, r.stderr
+        return
     for compiler, std in (("gcc", "c99"), ("gcc", "c11"), ("g++", "c++11")):
         v = _compile_and_run(tmp_path, text, compiler, std)
         assert v["prescaler"] == d.timer.prescaler
@@ -87,9 +106,14 @@ def test_header_compiles_and_matches_design(tmp_path, example, board):
         assert v["hold_code"] == d.adc.hold_code
         assert v["over_current_code"] == d.adc.over_current_code
         assert v["open_load_code"] == d.adc.open_load_code
+        assert v["regulation"] == {"fixed": 0, "supply_table": 1, "current": 2}[d.hold.regulation]
         assert v["table"] == list(zip(d.duty_table.adc_codes, d.duty_table.compare_ticks))
-        assert v["lookup_low"] == d.duty_table.compare_ticks[0], "below the table: highest duty"
-        assert v["lookup_high"] == d.duty_table.compare_ticks[-1]
+        if d.duty_table.adc_codes:
+            assert v["lookup_low"] == d.duty_table.compare_ticks[0], "below the table: highest duty"
+            assert v["lookup_high"] == d.duty_table.compare_ticks[-1]
+        if d.peak_table is not None:
+            assert v["peaks"] == list(zip(d.peak_table.adc_codes, d.peak_table.peak_ticks))
+            assert v["peak_low"] == d.peak_table.peak_ticks[0] == d.pull_in.peak_ticks
 
 
 def test_every_board_has_a_passing_example():
@@ -139,4 +163,5 @@ def test_header_has_guard_provenance_and_cautions(demo_drive):
     assert not re.search(r"20\d\d-\d\d-\d\d", text), "no timestamp: output is reproducible"
     for line in text.splitlines():
         if line.startswith("#define VALVE_") and not line.startswith("#define VALVE_DRIVE_H"):
-            assert re.match(r"#define VALVE_\w+\s+\d+UL?\s", line), line
+            # an integer literal, or (the regulation) one of the header's own macros
+            assert re.match(r"#define VALVE_\w+\s+(\d+UL?|VALVE_REGULATION_\w+)\s", line), line

@@ -256,10 +256,12 @@ class ScriptedLink:
 
 
 def test_over_current_stops_at_once(latch):
-    """16 V on a coil with a fifth of its turns shorted: the peak runs towards
-    16 V / 9.85 ohm = 1.6 A, past the design's 1.46 A over-current threshold."""
+    """20 V on a coil with a fifth of its turns shorted: the peak runs towards
+    20 V / 9.85 ohm = 2.0 A, past the design's over-current threshold (1.25 x the
+    highest healthy current, about 1.6 A: the cold coil at 13.2 V)."""
     d, des = latch
-    link = ScriptedLink(d, supply=16.0, fault="shorted_turns")
+    assert des.adc.over_current_a < 20.0 / 9.85 * 0.95, des.adc
+    link = ScriptedLink(d, supply=20.0, fault="shorted_turns")
     res = LiveTuner(link, des, LiveOptions(hold_time=0.01)).run()
     assert res.failure[0] == "over_current", res.failure
     assert "over-current" in res.failure[1] and f"{des.adc.over_current_a:.4g} A" in res.failure[1]

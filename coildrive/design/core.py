@@ -10,7 +10,7 @@ outputs that show one.
 from __future__ import annotations
 
 from ..config import Drive
-from .firmware import firmware_setting  # noqa: F401 -- re-exported: part of this module's API
+from .firmware import firmware_setting  # noqa: F401  (re-exported: part of this module's API)
 from .holds import strategy_for
 from .result import Design
 
@@ -39,3 +39,5 @@ def design_waveforms(design: Design) -> dict:
     return {p.name: actuation(design, p.supply_v, p.coil_temp_c, p.hold_time_s, p.r_factor,
                               p.l_factor, label=p.label, strict=False)
             for p in design.actuation_points}
+
+__all__ = ["actuation", "design", "design_waveforms", "firmware_setting"]

@@ -63,8 +63,21 @@ def tolerances(drive: Drive) -> Tolerances:
     return Tolerances(*(a[:, j].copy() for j in range(5)))
 
 
-def supply_axis(drive: Drive) -> list[float]:
-    return _axis(drive.supply.min, drive.supply.nominal, drive.supply.max)
+def supply_axis(drive: Drive, extra=()) -> list[float]:
+    """The supplies of the envelope: min, nominal, max, and ``extra`` ones within them."""
+    values = [drive.supply.min, drive.supply.nominal, drive.supply.max]
+    values += sorted(float(v) for v in extra if drive.supply.min <= v <= drive.supply.max)
+    return _axis(*values)
+
+
+def bracket_tops(drive: Drive, codes) -> list[float]:
+    """The highest bus voltage at which the firmware still reads each table entry's code
+    and not the next (the divider reading low, the ADC truncating): between two entries
+    the hold runs the lower entry's compare there, so the current and the heat are at
+    their highest just below the next entry."""
+    tol = drive.board.supply_sense.divider_tolerance
+    step = supply_lsb(drive) * (1.0 + tol)
+    return [float(c * step * (1.0 - 1e-9)) for c in list(codes)[1:]]
 
 
 def ambient_axis(drive: Drive) -> list[float]:
@@ -85,8 +98,8 @@ class HeatingGrid:
         return _label(self.supply[k], self.ambient[k], None, self.tol, int(self.index[k]))
 
 
-def heating_grid(drive: Drive, tol: Tolerances) -> HeatingGrid:
-    pairs = list(itertools.product(supply_axis(drive), ambient_axis(drive)))
+def heating_grid(drive: Drive, tol: Tolerances, extra=()) -> HeatingGrid:
+    pairs = list(itertools.product(supply_axis(drive, extra), ambient_axis(drive)))
     n = len(pairs)
     sup = np.tile(np.array([p[0] for p in pairs], float), len(tol))
     amb = np.tile(np.array([p[1] for p in pairs], float), len(tol))
@@ -132,14 +145,15 @@ class Envelope(CornerGrid):
                 "sense_factor": self.sense_factor}
 
 
-def envelope(drive: Drive, tol: Tolerances, hot_temp: np.ndarray) -> Envelope:
+def envelope(drive: Drive, tol: Tolerances, hot_temp: np.ndarray, extra=()) -> Envelope:
     """Supply x ambient x {cold (the ambient), hot (``hot_temp`` of the tolerance corner)}
     x tolerance corners. A hot temperature that does not settle (``inf``) is taken at
-    ``thermal.max_coil_temp`` for the electrical figures (the temperature check fails)."""
+    ``thermal.max_coil_temp`` for the electrical figures (the temperature check fails).
+    ``extra``: more supplies (the supply table's bracket tops)."""
     rows = []
     for k in range(len(tol)):
         t_hot = float(hot_temp[k]) if math.isfinite(hot_temp[k]) else drive.thermal.max_coil_temp
-        for s in supply_axis(drive):
+        for s in supply_axis(drive, extra):
             for a in ambient_axis(drive):
                 rows.append((s, a, a, 0, k))
                 rows.append((s, a, max(t_hot, a), 1, k))

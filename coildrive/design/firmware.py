@@ -3,6 +3,9 @@ the design's tables the way the generated header's functions look them up."""
 
 from __future__ import annotations
 
+import numpy as np
+
+from .envelope import table_index
 from .figures import adc_code
 from .regulation import table_lookup
 from .result import Design
@@ -23,4 +26,24 @@ def firmware_setting(design: Design, supply: float) -> tuple[float, float]:
         duty = design.duty_table.compare_ticks[table_lookup(design.duty_table, code)] / design.timer.period_ticks
     if design.peak_table is not None:
         peak = design.peak_table.peak_ticks[table_lookup(design.peak_table, code)] / b.tick.rate
+    return duty, peak
+
+
+def firmware_arrays(design: Design, supply) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`firmware_setting` over an array of bus voltages: ``(duty, peak s)`` arrays."""
+    drive = design.drive
+    b = drive.board
+    v = np.asarray(supply, float)
+    duty = np.full(v.shape, design.hold.duty)
+    peak = np.full(v.shape, design.pull_in.peak_time_s or 0.0)
+    if b.supply_sense is None:
+        return duty, peak
+    lsb = b.adc.reference / 2**b.adc.bits
+    code = np.clip(np.floor(v / b.supply_sense.divider / lsb), 0, 2**b.adc.bits - 1)
+    if design.hold.regulation == "supply_table" and design.duty_table.adc_codes:
+        k = table_index(design.duty_table.adc_codes, code)
+        duty = np.asarray(design.duty_table.compare_ticks, float)[k] / design.timer.period_ticks
+    if design.peak_table is not None:
+        k = table_index(design.peak_table.adc_codes, code)
+        peak = np.asarray(design.peak_table.peak_ticks, float)[k] / b.tick.rate
     return duty, peak

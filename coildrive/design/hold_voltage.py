@@ -32,7 +32,7 @@ from .checks import base_checks, cautions, energy_checks, loss_cautions, loss_ch
 from .corners import nominal_point
 from .envelope import supply_codes
 from .evaluate import PointResults, evaluate
-from .firmware import firmware_setting
+from .firmware import firmware_arrays, firmware_setting
 from .figures import (ASSUMED_DIODE_DROP, adc_code, adc_thresholds, corners_of, hold_spread,
                       loss_figures, path_name, pull_in_result, release_result, slow_hold_drive,
                       worst)
@@ -148,15 +148,22 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     points = (plot_point(drive, "nominal", "nominal", nom, 0, hold_time),
               plot_point(drive, "worst", "worst pull-in: " + env.label(pk.k_pull), res_low, pk.k_pull,
                          hold_time))
-    mc = None
+    out = Design(drive=drive, pull_in=pull_in, hold=hold, release=release, timer=timer_result,
+                 adc=thresholds, duty_table=table, corners=corners, nominal=nominal,
+                 checks=checks, cautions=notes, monte_carlo=None,
+                 input_hash=drive.input_hash(), worst_corner_index=pk.k_pull, armature=arm,
+                 split_decay=split, actuation_points=points, peak_table=pk.table)
     if samples > 0:
         from .montecarlo import monte_carlo
-        mc = monte_carlo(drive, duty, f_hold, peak_time, samples, seed)
-    return Design(drive=drive, pull_in=pull_in, hold=hold, release=release, timer=timer_result,
-                  adc=thresholds, duty_table=table, corners=corners, nominal=nominal,
-                  checks=checks, cautions=notes, monte_carlo=mc,
-                  input_hash=drive.input_hash(), worst_corner_index=pk.k_pull, armature=arm,
-                  split_decay=split, actuation_points=points, peak_table=pk.table)
+
+        def duty_at(s):
+            return firmware_arrays(out, s)[0]
+
+        def peak_at(s):
+            return firmware_arrays(out, s)[1]
+        out = dataclasses.replace(out, monte_carlo=monte_carlo(drive, duty_at, f_hold, peak_at,
+                                                               samples, seed))
+    return out
 
 
 def _nominal_duty(drive: Drive, plan: HoldPlan, period: int) -> float:

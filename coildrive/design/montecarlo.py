@@ -47,7 +47,9 @@ def monte_carlo(drive: Drive, duty: float, frequency: float, peak_time: float, s
     Returns a JSON-ready dict: ``samples``, ``seed``, ``percentiles`` (the levels), and for
     each figure its values at those levels plus ``max``/``min``; ``failures`` counts the
     samples whose pull-in time exceeds the peak time or whose hold current falls short.
-    ``chunk`` samples are evaluated together (``None``: all at once).
+    ``chunk`` samples are evaluated together (``None``: all at once). ``duty`` and
+    ``peak_time`` may be functions of the samples' supply (V, an array) giving each
+    sample's value: the hold and peak the firmware runs at that supply (a supply table).
     """
     rng = np.random.default_rng(seed)
     c = drive.coil
@@ -55,16 +57,21 @@ def monte_carlo(drive: Drive, duty: float, frequency: float, peak_time: float, s
     ambient = rng.uniform(drive.ambient.min, drive.ambient.max, samples)
     rf = _factors(rng, c.resistance_tolerance, samples, c.tolerance_distribution)
     lf = _factors(rng, c.inductance_tolerance, samples, c.tolerance_distribution)
+    duty_of = duty if callable(duty) else (lambda s: duty)
+    peak_of = peak_time if callable(peak_time) else (lambda s: peak_time)
     if chunk is None:
-        values = _figures(evaluate(drive, supply, ambient, rf, lf, duty, frequency, peak_time))
+        values = _figures(evaluate(drive, supply, ambient, rf, lf, duty_of(supply), frequency,
+                                   peak_of(supply)))
     else:
         values = tuple(np.empty(samples) for _ in FIGURES)
         for start in range(0, samples, chunk):
             sl = slice(start, min(start + chunk, samples))
-            res = evaluate(drive, supply[sl], ambient[sl], rf[sl], lf[sl], duty, frequency, peak_time)
+            s = supply[sl]
+            res = evaluate(drive, s, ambient[sl], rf[sl], lf[sl], duty_of(s), frequency, peak_of(s))
             for out, got in zip(values, _figures(res)):
                 out[sl] = got
-    del supply, ambient, rf, lf  # the inputs' memory is free before the percentiles' copies
+    supply_all = supply
+    del ambient, rf, lf  # the inputs' memory is free before the percentiles' copies
     figures = dict(zip(FIGURES, values))
     out: dict = {"samples": samples, "seed": seed, "percentiles": list(PERCENTILES),
                  "distribution": c.tolerance_distribution}
@@ -76,7 +83,7 @@ def monte_carlo(drive: Drive, duty: float, frequency: float, peak_time: float, s
         out[name] = {"values": [float(v) for v in np.percentile(finite, PERCENTILES)],
                      "min": float(finite.min()), "max": float(finite.max())}
     out["failures"] = {
-        "pull_in_late": int(np.sum(~(figures["pull_in_time_s"] <= peak_time))),
+        "pull_in_late": int(np.sum(~(figures["pull_in_time_s"] <= peak_of(supply_all)))),
         "hold_short": int(np.sum(~(figures["hold_mean_current_a"] >= drive.hold.current))),
         "coil_too_hot": int(np.sum(~(figures["coil_temp_c"] <= drive.thermal.max_coil_temp))),
     }

@@ -28,8 +28,8 @@ import numpy as np
 from ..config import Drive
 from ..model.circuit import loop
 from ..model.pwm import duty_for_mean, pwm_steady_state
-from .envelope import (Envelope, HeatingGrid, Tolerances, envelope, heating_grid, hottest,
-                       lowest_supply_for_code, supply_codes, table_index, tolerances)
+from .envelope import (Envelope, HeatingGrid, Tolerances, bracket_tops, envelope, heating_grid,
+                       hottest, lowest_supply_for_code, supply_codes, table_index, tolerances)
 from .evaluate import hold_temperature
 from .figures import adc_code
 from .result import DutyTable
@@ -100,7 +100,10 @@ def solve_hold(drive: Drive, timer: TimerSetting) -> HoldPlan:
     period = timer.period_ticks
     target = drive.hold.current
     tol = tolerances(drive)
-    heat = heating_grid(drive, tol)
+    extra = ()
+    if drive.hold.regulation == "supply_table":
+        extra = bracket_tops(drive, table_supplies(drive)[1])
+    heat = heating_grid(drive, tol, extra)
     n = len(tol)
     hot = np.full(n, float(drive.ambient.max))
     table = None
@@ -127,7 +130,7 @@ def solve_hold(drive: Drive, timer: TimerSetting) -> HoldPlan:
                 break
         table = DutyTable([float(v) for v in volts], [int(c) for c in codes],
                           [int(c) for c in compares], [float(v) for v in design_v])
-        env = envelope(drive, tol, hot)
+        env = envelope(drive, tol, hot, extra)
         low, high = supply_codes(drive, env.supply)
         compare_high = compares[table_index(codes, low)]
         compare_low = compares[table_index(codes, high)]
