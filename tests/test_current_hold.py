@@ -25,9 +25,9 @@ from coildrive.design.corners import corner_grid
 from coildrive.design.hold_current import lsb_current, settle
 from coildrive.design import design
 from coildrive.errors import InputError
-from conftest import BOARDS, EXAMPLES, require_tool, run_cli
+from conftest import BOARDS, EXAMPLES, drive_path, require_tool, run_cli
 
-DEMO_TEXT = (EXAMPLES / "demo-valve.toml").read_text()
+DEMO_TEXT = drive_path("zener-valve").read_text()  # a plain Zener path, fixed peak
 
 
 def _drive_file(tmp_path, extra: str, name: str = "cm.toml", board: str | None = None):
@@ -71,8 +71,8 @@ def test_current_keys_rejected_in_voltage_mode(tmp_path):
 
 
 def test_new_keys_at_default_keep_the_input_hash(tmp_path):
-    base = load_drive(EXAMPLES / "demo-valve.toml").input_hash()
-    path = tmp_path / "demo-valve.toml"  # the drive's name (file stem) is part of the hash
+    base = load_drive(drive_path("zener-valve")).input_hash()
+    path = tmp_path / "zener-valve.toml"  # the drive's name (file stem) is part of the hash
     path.write_text(DEMO_TEXT.replace("[release]", "[switch]\nrise_time = 0\nfall_time = 0\n[release]"))
     assert load_drive(path).input_hash() == base, "defaults left out of the hash"
     path.write_text(DEMO_TEXT.replace("[release]", '[switch]\nrise_time = "40 ns"\n[release]'))
@@ -219,7 +219,7 @@ def test_header_has_thresholds_and_compiles(tmp_path, extra, macros):
 
 def test_voltage_header_has_no_current_mode_macros():
     from coildrive.codegen.header import generate_header
-    text = generate_header(design(load_drive(EXAMPLES / "demo-valve.toml")), "P")
+    text = generate_header(design(load_drive(drive_path("zener-valve"))), "P")
     assert "HOLD_HYSTERETIC" not in text and "Current-mode" not in text and "fallback" not in text
 
 

@@ -26,15 +26,16 @@ import pytest
 from scipy.integrate import solve_ivp
 from typer.testing import CliRunner
 
-from circuit_reference import parts
+from circuit_reference import iec60028_resistance, parts
 from coildrive.config import load_drive
+from coildrive.design import firmware_setting
 from coildrive.design.corners import corner_grid
 from coildrive.design import design
 from coildrive.model.circuit import loop
 from coildrive.model.losses import hold_losses
 from coildrive.model.pwm import pwm_steady_state
 from coildrive.cli import app
-from conftest import EXAMPLES, json_error, require_tool, run_cli
+from conftest import EXAMPLES, drive_path, json_error, require_tool, run_cli
 
 SPLIT = EXAMPLES / "wash-valve-split-24v.toml"
 runner = CliRunner()
@@ -42,7 +43,7 @@ runner = CliRunner()
 
 def _drive_file(tmp_path: Path, base: str, extra: str, name: str = "drive") -> Path:
     """``base`` example with ``extra`` TOML appended (sections it does not have yet)."""
-    text = (EXAMPLES / f"{base}.toml").read_text()
+    text = drive_path(base).read_text()
     path = tmp_path / f"{name}.toml"
     path.write_text(text + "\n" + extra)
     return path
@@ -78,24 +79,36 @@ def _check(doc: dict, name: str) -> dict:
     return found[0]
 
 
+def _corner_points(drive, doc):
+    """Supply, coil temperature and the coil tolerance factors of every corner of the JSON
+    (the factors from the corner's resistance and inductance: IEC 60028 at its temperature)."""
+    c = drive.coil
+    supply = np.array([k["supply_v"] for k in doc["corners"]])
+    temps = np.array([k["coil_temp_c"] for k in doc["corners"]])
+    r_nom = np.array([iec60028_resistance(c.resistance, c.reference_temp, t) for t in temps])
+    rf = np.array([k["resistance_ohm"] for k in doc["corners"]]) / r_nom
+    base = c.inductance if drive.armature is None else drive.armature.inductance_closed
+    lf = np.array([k["inductance_h"] for k in doc["corners"]]) / base
+    return supply, temps, rf, lf
+
+
 def _corner_losses(drive, doc):
     """hold_losses at every corner of the design JSON: the corner grid's tolerance factors
     with the coil temperatures and the duty the design reports."""
-    g = corner_grid(drive)
-    temps = np.array([c["coil_temp_c"] for c in doc["corners"]])
-    np.testing.assert_allclose(g.supply, [c["supply_v"] for c in doc["corners"]])
-    lp = loop(drive, g.supply, temps, g.r_factor, g.l_factor)
+    supply, temps, rf, lf = _corner_points(drive, doc)
+    lp = loop(drive, supply, temps, rf, lf)
     f = doc["hold"]["frequency_hz"]
-    ss = pwm_steady_state(doc["hold"]["duty"], f, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
+    duty = np.array([c["hold_duty"] for c in doc["corners"]])
+    ss = pwm_steady_state(duty, f, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
     return hold_losses(drive, lp, ss, f, drive.switch.rise_time, drive.switch.fall_time), lp, ss
 
 
 # --------------------------------------------------------------------------- JSON keys
-@pytest.mark.parametrize("example", ["demo-valve", "pinch-valve-48v", "door-latch-24v",
+@pytest.mark.parametrize("example", ["zener-valve", "pinch-valve-48v", "door-latch-24v",
                                      "relay-12v", "wash-valve-split-24v"])
 def test_design_json_hold_powers_equal_hold_losses(example):
-    drive = load_drive(EXAMPLES / f"{example}.toml")
-    _, doc = _json(str(EXAMPLES / f"{example}.toml"))
+    drive = load_drive(drive_path(example))
+    _, doc = _json(str(drive_path(example)))
     loss, _, _ = _corner_losses(drive, doc)
     hold = doc["hold"]
     assert hold["freewheel_power_w"] == pytest.approx(float(np.max(loss.freewheel)), rel=1e-9)
@@ -111,10 +124,13 @@ def test_design_json_hold_powers_equal_hold_losses(example):
 
 
 def test_report_shows_hold_powers_and_saving(demo_drive):
-    r = runner.invoke(app, ["design", str(demo_drive)])
+    r = runner.invoke(app, ["design", str(demo_drive)])  # the demo has split decay fitted
     assert r.exit_code == 0, r.output
-    for text in ("hold freewheel power", "hold switch power", "split decay would save"):
+    for text in ("hold freewheel power", "hold switch power", "split decay"):
         assert text in r.stdout, text
+    r = runner.invoke(app, ["design", str(EXAMPLES / "reagent-valve-zener-24v.toml")])
+    assert r.exit_code == 0, r.output  # the same valve without it: what it would save
+    assert "split decay would save" in r.stdout
 
 
 # --------------------------------------------------------------------------- issue scenarios
@@ -125,18 +141,18 @@ def _worst_freewheel_corner(path: Path):
     _, doc = _json(str(path))
     k = int(np.argmax([c["freewheel_power_w"] for c in doc["corners"]]))
     c = doc["corners"][k]
-    g = corner_grid(drive)
-    p = parts(drive, c["supply_v"], c["coil_temp_c"], g.r_factor[k], g.l_factor[k])
+    _, _, rf, lf = _corner_points(drive, doc)
+    p = parts(drive, c["supply_v"], c["coil_temp_c"], rf[k], lf[k])
     v_on, r_on = p.on()
     v_fw, r_off = p.off()           # L di/dt = v_fw - r_off i while freewheeling
     f = doc["hold"]["frequency_hz"]
     # scipy (LSODA) periodic steady state of the element-level circuit
-    return doc, p, f, _periodic_integrals(v_on, r_on, r_off, -v_fw, p.inductance, doc["hold"]["duty"], f)
+    return doc, p, f, _periodic_integrals(v_on, r_on, r_off, -v_fw, p.inductance, c["hold_duty"], f)
 
 
 def test_zener_36v_valve_at_25khz_takes_several_watts(tmp_path):
     """The issue's invented scenario: a 24 V valve on a 36 V Zener holding at 25 kHz."""
-    path = _drive_file(tmp_path, "demo-valve", '[freewheel]\nzener_voltage = "36 V"\n')
+    path = _drive_file(tmp_path, "zener-valve", '[freewheel]\nzener_voltage = "36 V"\n')
     doc, p, f, (q_on, s_on, q_off, s_off) = _worst_freewheel_corner(path)
     zener = doc["hold"]["freewheel_elements_w"]["zener"]
     assert zener > 3.0, f"only {zener} W in the Zener"
@@ -166,25 +182,25 @@ def test_48v_bus_75v_clamp_takes_over_ten_watts():
 
 
 # --------------------------------------------------------------------------- ratings
-def test_rating_fails_warns_and_passes(tmp_path, demo_drive):
-    _, doc = _json(str(demo_drive))
+def test_rating_fails_warns_and_passes(tmp_path):
+    _, doc = _json(str(drive_path("reagent-valve-zener-24v")))
     warn = _check(doc, "zener_power")
     assert warn["severity"] == "warning" and not warn["ok"] and "zener_power_rating" in warn["detail"]
     zener = doc["hold"]["freewheel_elements_w"]["zener"]      # about 4.1 W
-    low = _drive_file(tmp_path, "demo-valve", '[freewheel]\nzener_power_rating = "5 W"\n', "low")
+    low = _drive_file(tmp_path, "reagent-valve-zener-24v", '[freewheel]\nzener_power_rating = "5 W"\n', "low")
     rc, doc = _json(str(low))
     c = _check(doc, "zener_power")
     assert rc == 1 and not doc["ok"] and c["severity"] == "error" and not c["ok"], c
     assert "50% of the 5 W rating" in c["detail"] and "common practice" in c["detail"]
     assert f"{zener:.3g} W" in c["detail"]
-    high = _drive_file(tmp_path, "demo-valve",
+    high = _drive_file(tmp_path, "reagent-valve-zener-24v",
                        '[freewheel]\nzener_power_rating = "10 W"\ndiode_power_rating = "1 W"\n'
                        '[switch]\npower_rating = "2 W"\n', "high")
     rc, doc = _json(str(high))
     assert rc == 0 and _check(doc, "zener_power")["ok"] and _check(doc, "diode_power")["ok"]
     assert _check(doc, "switch_power")["ok"] and _check(doc, "switch_power")["severity"] == "error"
     # a derating of 0.9 makes 5 W enough for 4.1 W
-    derated = _drive_file(tmp_path, "demo-valve",
+    derated = _drive_file(tmp_path, "reagent-valve-zener-24v",
                           '[freewheel]\nzener_power_rating = "5 W"\npower_derating = 0.9\n', "derated")
     rc, doc = _json(str(derated))
     assert _check(doc, "zener_power")["ok"] and "90% of the 5 W rating" in _check(doc, "zener_power")["detail"]
@@ -199,7 +215,7 @@ def test_rating_fails_warns_and_passes(tmp_path, demo_drive):
     ('[freewheel]\nsplit_decay = "yes"\n', "freewheel.split_decay"),
 ])
 def test_bad_rating_and_split_keys_exit_2(tmp_path, extra, key):
-    path = _drive_file(tmp_path, "demo-valve", extra)
+    path = _drive_file(tmp_path, "zener-valve", extra)
     r = runner.invoke(app, ["design", str(path), "--json"])
     assert r.exit_code == 2, r.output
     json_error(r.stdout, r.stderr)
@@ -208,7 +224,7 @@ def test_bad_rating_and_split_keys_exit_2(tmp_path, extra, key):
 
 
 def test_bad_rating_exit_2_as_a_process(tmp_path):
-    path = _drive_file(tmp_path, "demo-valve", '[freewheel]\nzener_power_rating = "3 V"\n')
+    path = _drive_file(tmp_path, "zener-valve", '[freewheel]\nzener_power_rating = "3 V"\n')
     r = run_cli("design", str(path), "--json")
     assert r.returncode == 2 and "Traceback" not in r.stderr
     json_error(r.stdout, r.stderr)
@@ -226,11 +242,11 @@ def test_split_clamp_needs_a_diode_drop(tmp_path):
 
 
 # --------------------------------------------------------------------------- split decay
-def test_saving_equals_a_split_design(tmp_path, demo_drive):
+def test_saving_equals_a_split_design(tmp_path):
     """The saving the design reports is what a design with split decay gets."""
-    _, plain = _json(str(demo_drive))
+    _, plain = _json(str(drive_path("zener-valve")))
     sv = plain["hold"]["split_decay_saving"]
-    path = _drive_file(tmp_path, "demo-valve", '[freewheel]\nsplit_decay = true\nbypass_lead = "1 us"\n')
+    path = _drive_file(tmp_path, "zener-valve", '[freewheel]\nsplit_decay = true\nbypass_lead = "1 us"\n')
     _, split = _json(str(path))
     assert split["hold"]["split_decay_saving"] is None
     assert split["hold"]["duty"] == pytest.approx(sv["duty_split"], abs=1e-12)
@@ -243,7 +259,7 @@ def test_saving_equals_a_split_design(tmp_path, demo_drive):
     # the release still goes through the Zener: the same switch voltage and time as before
     # (same supply range and hold top? no: the duty changed, so compare the switch voltage
     # law instead: V_bus + V_d + V_z at the highest supply for the release)
-    fw = load_drive(demo_drive).freewheel
+    fw = load_drive(drive_path("zener-valve")).freewheel
     assert split["release"]["peak_switch_voltage_v"] == pytest.approx(28.0 + fw.diode_drop + fw.zener_voltage)
 
 
@@ -278,7 +294,8 @@ def test_split_simulation_end_to_end(tmp_path):
     assert np.all(np.diff(t) > 0)
     p, (v_on, r_on), (vs, rs), (vf, rf) = _slow_fast_parts(drive, supply, temp)
     ind = p.inductance
-    duty, f = doc["hold"]["duty"], doc["hold"]["frequency_hz"]
+    duty, _ = firmware_setting(design(drive), supply)  # the compare the firmware runs there
+    f = doc["hold"]["frequency_hz"]
     off_edges = np.flatnonzero((on[:-1] == 1) & (on[1:] == 0))
     t_off = t[off_edges[-1]]                 # the final turn-off
     # The bypass opens bypass_lead before the final turn-off, and stays open.
@@ -323,10 +340,9 @@ def test_split_simulation_end_to_end(tmp_path):
     # steady state (scipy) decaying through the fast loop (closed form).
     k = int(np.argmax([c["release_time_s"] for c in doc["corners"]]))
     c = doc["corners"][k]
-    g = corner_grid(drive)
-    pk, on_k, slow_k, fast_k = _slow_fast_parts(drive, c["supply_v"], c["coil_temp_c"],
-                                                g.r_factor[k], g.l_factor[k])
-    _, top_k = _scipy_period(*on_k, *slow_k, pk.inductance, duty, f)
+    _, _, rf_k, lf_k = _corner_points(drive, doc)
+    pk, on_k, slow_k, fast_k = _slow_fast_parts(drive, c["supply_v"], c["coil_temp_c"], rf_k[k], lf_k[k])
+    _, top_k = _scipy_period(*on_k, *slow_k, pk.inductance, c["hold_duty"], f)
     vfk, rfk = fast_k
     t_rel_k = pk.inductance / rfk * math.log((top_k + vfk / rfk) / (drop + vfk / rfk))
     assert doc["release"]["time_s"] == pytest.approx(t_rel_k, rel=1e-6)
@@ -370,8 +386,8 @@ def test_late_bypass_slows_the_release(tmp_path):
     assert doc["split_decay"]["lag_counts"] == math.floor(50e-6 * doc["split_decay"]["count_rate_hz"] + 1e-9)
     k = int(np.argmax([c["release_time_s"] for c in doc["corners"]]))
     corner = doc["corners"][k]
-    g = corner_grid(drive)
-    p = parts(drive, corner["supply_v"], corner["coil_temp_c"], g.r_factor[k], g.l_factor[k])
+    _, _, rf_k, lf_k = _corner_points(drive, doc)
+    p = parts(drive, corner["supply_v"], corner["coil_temp_c"], rf_k[k], lf_k[k])
     r_loop = p.r_coil + p.r_sense
     vs, rs = p.v_diode, r_loop + drive.freewheel.bypass_resistance
     vf, rf = p.v_diode + p.v_zener, r_loop
@@ -446,8 +462,8 @@ def test_split_plot_is_written(tmp_path):
 
 
 def test_hold_and_release_loops_coincide_without_split_decay():
-    for example in ("demo-valve", "pinch-valve-48v", "relay-12v", "door-latch-24v"):
-        drive = load_drive(EXAMPLES / f"{example}.toml")
+    for example in ("zener-valve", "pinch-valve-48v", "relay-12v", "door-latch-24v"):
+        drive = load_drive(drive_path(example))
         hold, rel = loop(drive, 24.0, 20.0), loop(drive, 24.0, 20.0, path="release")
         assert (float(hold.r_off), float(hold.v_off)) == (float(rel.r_off), float(rel.v_off))
         assert not hold.bypassed and design(drive).split_decay is None

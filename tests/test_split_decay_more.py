@@ -45,7 +45,7 @@ from coildrive.model.armature import params_from_loop
 from coildrive.model.armature_runs import late_release, release
 from coildrive.model.armature_sim import release_reference, simulate
 from coildrive.model.circuit import loop
-from conftest import EXAMPLES, require_tool, run_cli
+from conftest import EXAMPLES, drive_path, require_tool, run_cli
 from test_split_decay import _json
 
 runner = CliRunner()
@@ -56,7 +56,7 @@ def _drive_file(tmp_path: Path, base: str, extra: str = "", *, current: str | No
                 board: str | None = None, name: str = "drive") -> Path:
     """``base`` example, optionally as a current-mode hold (``current`` = the control)
     on another board, with ``extra`` TOML appended."""
-    text = (EXAMPLES / f"{base}.toml").read_text()
+    text = drive_path(base).read_text()
     if current:
         text = text.replace('frequency = "25 kHz"',
                             f'frequency = "25 kHz"\nmode = "current"\ncontrol = "{current}"')
@@ -153,7 +153,7 @@ def cm_designs(tmp_path_factory):
     tmp = tmp_path_factory.mktemp("cm")
     out = {}
     for control in ("hysteretic", "off_time"):
-        path = _drive_file(tmp, "demo-valve", current=control, name=control)
+        path = _drive_file(tmp, "zener-valve", current=control, name=control)
         out[control] = (load_drive(path), _json(str(path))[1])
     return out
 
@@ -217,7 +217,7 @@ def test_current_mode_rows_checks_and_cautions(cm_designs):
 
 
 def test_current_mode_table_shows_losses_and_saving(tmp_path):
-    path = _drive_file(tmp_path, "demo-valve", current="hysteretic")
+    path = _drive_file(tmp_path, "zener-valve", current="hysteretic")
     r = runner.invoke(app, ["design", str(path)], env={"COLUMNS": "200"})
     assert r.exit_code == 0, r.output
     for row in ("hold freewheel power", "hold switch power", "split decay would save"):
@@ -236,7 +236,7 @@ def _split_and_plain(tmp: Path, base: str, lead: str, **kw):
 
 @pytest.fixture(scope="module")
 def cm_split(tmp_path_factory):
-    return _split_and_plain(tmp_path_factory.mktemp("cms"), "demo-valve", "1 us", current="hysteretic")
+    return _split_and_plain(tmp_path_factory.mktemp("cms"), "zener-valve", "1 us", current="hysteretic")
 
 
 def test_current_mode_split_decay_design(cm_split):

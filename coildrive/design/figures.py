@@ -56,13 +56,14 @@ def corner_armature(res: PointResults, k: int) -> dict | None:
 
 
 def corners_of(grid: CornerGrid, res: PointResults, losses: HoldLosses | None = None,
-               high: PointResults | None = None) -> list[Corner]:
+               high: PointResults | None = None, duty=math.nan) -> list[Corner]:
     """The corners as :class:`Corner` results: the hold figures from ``res``, and where the
     firmware's hold varies with its reading of the supply, the end-of-peak current, the
     switch voltage, the release energy and the coil power from ``high`` (the most
-    current it may run there)."""
+    current it may run there); ``duty``: the switch-on fraction of ``high`` at each corner."""
     hi = res if high is None else high
     out = []
+    duty_at = np.broadcast_to(np.asarray(duty, float), (len(grid),))
     nan = np.full(len(grid), math.nan)
     fw_p = nan if losses is None else np.broadcast_to(losses.freewheel, nan.shape)
     sw_p = nan if losses is None else np.broadcast_to(losses.switch, nan.shape)
@@ -82,6 +83,7 @@ def corners_of(grid: CornerGrid, res: PointResults, losses: HoldLosses | None = 
             release_energy_j=float(hi.release_energy[k]),
             armature=corner_armature(res, k),
             freewheel_power_w=float(fw_p[k]), switch_power_w=float(sw_p[k]),
+            hold_duty=float(duty_at[k]),
         ))
     return out
 

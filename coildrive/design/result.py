@@ -113,6 +113,7 @@ class Corner:
     armature: dict | None = None
     freewheel_power_w: float = math.nan
     switch_power_w: float = math.nan
+    hold_duty: float = math.nan
 
 
 #: Per-corner keys added with an ``[armature]`` (flattened into each JSON corner).
