@@ -323,7 +323,8 @@ def test_current_mode_split_simulate_csv(cm_split, tmp_path):
     seg = slice(k0, int(np.flatnonzero(on[k0 + 1:] == 1)[0]) + k0 + 1)
     dt = t[seg] - t[k0]
     slow = (i[k0] + v_slow / r_slow) * np.exp(-dt * r_slow / ind) - v_slow / r_slow
-    np.testing.assert_allclose(i[seg], slow, rtol=1e-9, err_msg="hold off-time: slow path")
+    # (the CSV keeps 10 significant digits, and the start current is read from it too)
+    np.testing.assert_allclose(i[seg], slow, rtol=2e-9, err_msg="hold off-time: slow path")
     assert np.all(bp[seg] == 1)
     # the release
     tail = slice(last_on, None)
@@ -365,8 +366,9 @@ def test_armature_split_hold_ripple_is_the_slow_paths(latch_split):
     """Each corner's ripple from the PWM fixed point written out here with the slow
     path's R_off and V_off (seated armature: the closed inductance)."""
     _, drive, (_, doc), _ = latch_split
-    duty, f = doc["hold"]["duty"], doc["hold"]["frequency_hz"]
+    f = doc["hold"]["frequency_hz"]
     for corner in doc["corners"]:
+        duty = corner["hold_duty"]  # the compare the firmware runs at this corner
         v, r_on, r_off, v_off, ind, _ = _circuit_by_hand(drive, corner, bypassed=True)
         a, b = v / r_on, v_off / r_off
         e_on, e_off = math.exp(-duty / f * r_on / ind), math.exp(-(1 - duty) / f * r_off / ind)
@@ -380,19 +382,24 @@ def test_armature_split_release_is_the_fast_paths(latch_split):
     armature ODE with the fast path's R_off and V_off; the slow path would be slower."""
     _, drive, (_, doc), _ = latch_split
     d = design(drive)
-    grid = corner_grid(drive)
-    res = evaluate(drive, grid.supply, grid.ambient, grid.r_factor, grid.l_factor, d.hold.duty,
-                   d.hold.frequency_hz, d.pull_in.peak_time_s)
-    temps = res.coil_temp
-    fast = loop(drive, grid.supply, temps, grid.r_factor, grid.l_factor, path="release")
-    slow = loop(drive, grid.supply, temps, grid.r_factor, grid.l_factor)
+    c = drive.coil
+    supply = np.array([k["supply_v"] for k in doc["corners"]])
+    temps = np.array([k["coil_temp_c"] for k in doc["corners"]])
+    rf = np.array([k["resistance_ohm"] for k in doc["corners"]]) / (
+        c.resistance * (1 + ALPHA * (temps - 20.0)) / (1 + ALPHA * (c.reference_temp - 20.0)))
+    lf = np.array([k["inductance_h"] for k in doc["corners"]]) / drive.armature.inductance_closed
+    duty = np.array([k["hold_duty"] for k in doc["corners"]])
+    res = evaluate(drive, supply, 0.0 * supply, rf, lf, duty, d.hold.frequency_hz,
+                   d.pull_in.peak_time_s, coil_temp=temps)
+    fast = loop(drive, supply, temps, rf, lf, path="release")
+    slow = loop(drive, supply, temps, rf, lf)
     # the loops from the element values (KVL by hand): fast = diode + Zener, slow = diode + bypass
     fw = drive.freewheel
     np.testing.assert_allclose(fast.v_off, fw.diode_drop + fw.zener_voltage)
     np.testing.assert_allclose(slow.v_off, fw.diode_drop)
-    p_fast = params_from_loop(drive.armature, fast, grid.l_factor)
-    p_slow = params_from_loop(drive.armature, slow, grid.l_factor)
-    for k in range(0, len(grid), 5):
+    p_fast = params_from_loop(drive.armature, fast, lf)
+    p_slow = params_from_loop(drive.armature, slow, lf)
+    for k in range(0, len(supply), 5):
         i_off = float(res.hold.i_max[k])
         ref = release_reference(p_fast.take(k), i_off, "DOP853")
         corner = doc["corners"][k]
@@ -463,7 +470,8 @@ def test_armature_split_simulate_csv(latch_split, tmp_path):
     assert np.all(x[seg] == 0.0), "seated through the hold"
     dt = t[seg] - t[k0]
     slow = (i[k0] + v_slow / r_slow) * np.exp(-dt * r_slow / ind) - v_slow / r_slow
-    np.testing.assert_allclose(i[seg], slow, rtol=1e-9, err_msg="hold off-time: slow path")
+    # (the CSV keeps 10 significant digits, and the start current is read from it too)
+    np.testing.assert_allclose(i[seg], slow, rtol=2e-9, err_msg="hold off-time: slow path")
     t_open = t[int(np.flatnonzero(bp == 0)[0])]
     assert t_open == pytest.approx(t_cut - 2e-6, abs=1e-12)
     assert np.all(bp[seg] == 1) and np.all(bp[last_on + 1:] == 0)
