@@ -35,7 +35,24 @@ def test_json_contract(tuned):
     cands = tuned["candidates"]
     assert 1 <= len(cands) <= 20
     assert [c["rank"] for c in cands] == list(range(1, len(cands) + 1))
-    assert [c["total_power_w"] for c in cands] == sorted(c["total_power_w"] for c in cands)
+    # within 1 % of the least supply power: by switching loss, then nearness to hold.frequency
+    ranking = tuned["ranking"]
+    assert ranking["tie_band"] == 0.01 and ranking["file_frequency_hz"] == 25e3
+    band = [c for c in cands if c["in_tie_band"]]
+    assert band == cands[:len(band)] and len(band) == min(ranking["settings_in_band"], len(cands)) >= 2
+    least = min(c["total_power_w"] for c in cands)
+    assert all(c["total_power_w"] <= least * 1.01 for c in band)
+    keys = [(c["switching_power_w"], abs(c["frequency_hz"] - 25e3)) for c in band]
+    assert keys == sorted(keys)
+    margin = cands[1]["total_power_w"] - cands[0]["total_power_w"]
+    assert ranking["first_two_margin_w"] == margin
+    assert ranking["first_two_margin_percent"] == pytest.approx(100 * margin / cands[0]["total_power_w"])
+    for c in cands:  # the objective is all the hold power from the supply, split at its corner
+        parts = c["worst_corner_powers_w"]
+        assert sum(parts.values()) == pytest.approx(c["total_power_w"], rel=1e-12)
+        assert parts["zener"] > 4 and c["freewheel_power_w"] >= parts["zener"] + parts["diode"] - 1e-12
+        assert c["frequency_hz"] == int(c["frequency_hz"]) and (
+            int(c["frequency_hz"]) * c["prescaler"] * c["period_ticks"] == 84_000_000)
     first = {k: v for k, v in cands[0].items() if k not in ("rank", "feasible", "failed")}
     assert first == {k: v for k, v in rec.items() if k != "hold_toml"}, "rank 1 is the recommendation"
     sweep = tuned["sweep"]
@@ -55,6 +72,9 @@ def test_pasted_hold_section_reproduces_the_recommendation(tmp_path, tuned):
     r = run_cli("design", str(drive), "--json", cwd=EXAMPLES)
     assert r.returncode == 0, r.stderr
     d = json.loads(r.stdout)
+    assert re.search(rf"^frequency = {int(rec['frequency_hz'])}  # Hz = 84 MHz / \(prescaler "
+                     rf"{rec['prescaler']} x period {rec['period_ticks']}\), compare {rec['compare_ticks']}$",
+                     rec["hold_toml"], re.M), rec["hold_toml"]
     assert d["hold"]["frequency_hz"] == rec["frequency_hz"]
     assert d["hold"]["duty"] == rec["duty"]
     assert d["timer"]["compare_ticks"] == rec["compare_ticks"]
@@ -141,6 +161,6 @@ def test_docs_show_what_tune_prints():
     assert m, "the usage section shows a recommendation"
     r = run_cli("tune", str(DEMO), "--json")
     rec = json.loads(r.stdout)["recommendation"]
-    assert f"{rec['frequency_hz']:.6g}" == m.group(1)
+    assert f"{rec['frequency_hz']:.0f}" == m.group(1)
     assert (rec["prescaler"], rec["period_ticks"], rec["compare_ticks"]) == tuple(map(int, m.groups()[1:]))
     assert rec["hold_toml"].splitlines()[2] in doc, "the pasted [hold] section is the real one"
