@@ -459,3 +459,26 @@ def test_every_offered_frequency_is_exact_and_the_pasted_hold_designs_to_it(tmp_
     assert d.hold.frequency_hz == rec.frequency_hz
     assert (d.timer.prescaler, d.timer.period_ticks, d.timer.compare_ticks) == (
         rec.prescaler, rec.period_ticks, rec.compare_ticks)
+
+
+def test_a_duty_per_corner_is_evaluated_at_its_own_corner():
+    """The objective takes the duty at each corner as one (settings x corners) array, as a
+    supply-following hold needs: each corner's figures against design's evaluate() at
+    that corner's own duty (coildrive.design.evaluate, self-heating to its 1e-4 K)."""
+    drive = _demo()
+    grid = corner_grid(drive)
+    from coildrive.tune.sweep import corner_duties, evaluate_settings
+    fixed = corner_duties(drive, grid, np.array([2501, 2600]), np.array([3360, 3360]))
+    assert fixed.shape == (2, len(grid)) and np.all(fixed[0] == 2501 / 3360) and np.all(fixed[1] == 2600 / 3360)
+    duty = 2501 / 3360 * grid.supply.min() / grid.supply  # less duty at a higher supply
+    duties = np.stack([duty, fixed[1]])
+    figs = evaluate_settings(drive, grid, duties, np.array([25e3, 25e3]))
+    res = evaluate(drive, grid.supply, grid.ambient, grid.r_factor, grid.l_factor, duty, 25e3, 0.0)
+    assert figs.min_mean[0] == pytest.approx(res.hold.mean.min(), rel=RTOL)
+    assert figs.max_mean[0] == pytest.approx(res.hold.mean.max(), rel=RTOL)
+    assert figs.coil_temp[0] == pytest.approx(res.coil_temp.max(), abs=2e-4)
+    drawn = res.loop.supply * res.hold.charge_on * 25e3  # V_bus x mean supply current
+    assert figs.total_power[0] == pytest.approx(drawn.max(), rel=RTOL)
+    flat = evaluate_settings(drive, grid, np.array([2600 / 3360]), 25e3)
+    assert flat.total_power[0] == figs.total_power[1], "a flat duty is the same duty at every corner"
+    assert figs.max_mean[0] < flat.max_mean[0], "less duty at the high supply"

@@ -94,6 +94,15 @@ def test_table_header_and_plot(tmp_path, tuned):
     assert "feasible settings" in out and "recommended:" in out
     assert "Paste into the drive file:" in out and re.search(r"^\[hold\]$", out, re.M)
     assert "licensed practice" in out and "switch see up to" in out, "cautions shown"
+    j = tuned["recommendation"]  # the same options with --json
+    m = re.search(r"^#2 draws ([\d.]+) ([mµ]?W) \(([\d.]+) %\) (more|less) than #1 from the supply$", out, re.M)
+    assert m, out
+    margin = tuned["ranking"]["first_two_margin_w"]
+    scale = {"W": 1.0, "mW": 1e-3, "µW": 1e-6}[m.group(2)]
+    assert float(m.group(1)) * scale == pytest.approx(abs(margin), rel=5e-3)
+    assert m.group(4) == ("more" if margin >= 0 else "less")
+    assert re.search(r"^ ?1\* " + str(int(j["frequency_hz"])) + r" ", out, re.M), "rank 1 in the tie band"
+    assert f"frequency = {int(j['frequency_hz'])}  # Hz = 84 MHz / (prescaler {j['prescaler']} x period" in out
     assert plot.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     text = header.read_text()
     m = re.search(r"#define VT_HOLD_COMPARE_TICKS\s+(\d+)U", text)
@@ -107,7 +116,6 @@ def test_table_header_and_plot(tmp_path, tuned):
     assert cc.returncode == 0, cc.stderr
     compare, period = map(int, subprocess.run([str(exe)], capture_output=True, text=True,
                                               check=True).stdout.split())
-    j = tuned["recommendation"]  # the same options with --json
     assert (compare, period) == (j["compare_ticks"], j["period_ticks"]) and m
 
 
