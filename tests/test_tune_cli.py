@@ -35,7 +35,24 @@ def test_json_contract(tuned):
     cands = tuned["candidates"]
     assert 1 <= len(cands) <= 20
     assert [c["rank"] for c in cands] == list(range(1, len(cands) + 1))
-    assert [c["total_power_w"] for c in cands] == sorted(c["total_power_w"] for c in cands)
+    # within 1 % of the least supply power: by switching loss, then nearness to hold.frequency
+    ranking = tuned["ranking"]
+    assert ranking["tie_band"] == 0.01 and ranking["file_frequency_hz"] == 25e3
+    band = [c for c in cands if c["in_tie_band"]]
+    assert band == cands[:len(band)] and len(band) == min(ranking["settings_in_band"], len(cands)) >= 2
+    least = min(c["total_power_w"] for c in cands)
+    assert all(c["total_power_w"] <= least * 1.01 for c in band)
+    keys = [(c["switching_power_w"], abs(c["frequency_hz"] - 25e3)) for c in band]
+    assert keys == sorted(keys)
+    margin = cands[1]["total_power_w"] - cands[0]["total_power_w"]
+    assert ranking["first_two_margin_w"] == margin
+    assert ranking["first_two_margin_percent"] == pytest.approx(100 * margin / cands[0]["total_power_w"])
+    for c in cands:  # the objective is all the hold power from the supply, split at its corner
+        parts = c["worst_corner_powers_w"]
+        assert sum(parts.values()) == pytest.approx(c["total_power_w"], rel=1e-12)
+        assert parts["zener"] > 4 and c["freewheel_power_w"] >= parts["zener"] + parts["diode"] - 1e-12
+        assert c["frequency_hz"] == int(c["frequency_hz"]) and (
+            int(c["frequency_hz"]) * c["prescaler"] * c["period_ticks"] == 84_000_000)
     first = {k: v for k, v in cands[0].items() if k not in ("rank", "feasible", "failed")}
     assert first == {k: v for k, v in rec.items() if k != "hold_toml"}, "rank 1 is the recommendation"
     sweep = tuned["sweep"]
@@ -55,6 +72,9 @@ def test_pasted_hold_section_reproduces_the_recommendation(tmp_path, tuned):
     r = run_cli("design", str(drive), "--json", cwd=EXAMPLES)
     assert r.returncode == 0, r.stderr
     d = json.loads(r.stdout)
+    assert re.search(rf"^frequency = {int(rec['frequency_hz'])}  # Hz = 84 MHz / \(prescaler "
+                     rf"{rec['prescaler']} x period {rec['period_ticks']}\), compare {rec['compare_ticks']}$",
+                     rec["hold_toml"], re.M), rec["hold_toml"]
     assert d["hold"]["frequency_hz"] == rec["frequency_hz"]
     assert d["hold"]["duty"] == rec["duty"]
     assert d["timer"]["compare_ticks"] == rec["compare_ticks"]
@@ -74,6 +94,15 @@ def test_table_header_and_plot(tmp_path, tuned):
     assert "feasible settings" in out and "recommended:" in out
     assert "Paste into the drive file:" in out and re.search(r"^\[hold\]$", out, re.M)
     assert "licensed practice" in out and "switch see up to" in out, "cautions shown"
+    j = tuned["recommendation"]  # the same options with --json
+    m = re.search(r"^#2 draws ([\d.]+) ([mµ]?W) \(([\d.]+) %\) (more|less) than #1 from the supply$", out, re.M)
+    assert m, out
+    margin = tuned["ranking"]["first_two_margin_w"]
+    scale = {"W": 1.0, "mW": 1e-3, "µW": 1e-6}[m.group(2)]
+    assert float(m.group(1)) * scale == pytest.approx(abs(margin), rel=5e-3)
+    assert m.group(4) == ("more" if margin >= 0 else "less")
+    assert re.search(r"^ ?1\* " + str(int(j["frequency_hz"])) + r" ", out, re.M), "rank 1 in the tie band"
+    assert f"frequency = {int(j['frequency_hz'])}  # Hz = 84 MHz / (prescaler {j['prescaler']} x period" in out
     assert plot.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     text = header.read_text()
     m = re.search(r"#define VT_HOLD_COMPARE_COUNTS\s+(\d+)U", text)
@@ -87,7 +116,6 @@ def test_table_header_and_plot(tmp_path, tuned):
     assert cc.returncode == 0, cc.stderr
     compare, period = map(int, subprocess.run([str(exe)], capture_output=True, text=True,
                                               check=True).stdout.split())
-    j = tuned["recommendation"]  # the same options with --json
     assert (compare, period) == (j["compare_ticks"], j["period_ticks"]) and m
 
 
@@ -141,6 +169,6 @@ def test_docs_show_what_tune_prints():
     assert m, "the usage section shows a recommendation"
     r = run_cli("tune", str(DEMO), "--json")
     rec = json.loads(r.stdout)["recommendation"]
-    assert f"{rec['frequency_hz']:.6g}" == m.group(1)
+    assert f"{rec['frequency_hz']:.0f}" == m.group(1)
     assert (rec["prescaler"], rec["period_ticks"], rec["compare_ticks"]) == tuple(map(int, m.groups()[1:]))
     assert rec["hold_toml"].splitlines()[2] in doc, "the pasted [hold] section is the real one"

@@ -12,8 +12,9 @@ def plot_tune(r: TuneResult) -> bytes:
     """PNG bytes: the trade-off between PWM frequency, ripple and loss.
 
     For the lowest hold level at every swept frequency (each point is one compare
-    value, so the quantisation to whole counts shows as a fine saw-tooth): worst-case
-    total power (feasible settings green, infeasible grey), switch conduction and
+    value, so the quantisation to whole counts shows as a fine saw-tooth): the objective
+    -- all hold power drawn from the supply at the worst corner (feasible settings
+    green, infeasible grey) with the tie band above the least, switch conduction and
     switching loss, and ripple against its limit. The recommendation is marked.
     """
     fg = r.figures
@@ -29,7 +30,7 @@ def plot_tune(r: TuneResult) -> bytes:
     ax2 = fig.add_subplot(3, 1, 2, sharex=ax1)
     ax3 = fig.add_subplot(3, 1, 3, sharex=ax1)
     def dots(ax, x, y, colour, label):
-        ax.plot(x, y, ".", ms=1.5, color=colour)
+        ax.plot(x, y, ".", ms=3, color=colour)
         ax.plot([], [], ".", ms=6, color=colour, label=label)  # legend entry at a readable size
     dots(ax1, f[feas], total[feas], "tab:green", "feasible")
     if np.any(~feas):
@@ -40,13 +41,18 @@ def plot_tune(r: TuneResult) -> bytes:
         dots(ax2, f, (cond + swl) * 1e3, "k", "switch total")
     ax3.plot(f, ripple * 1e3, color="tab:purple", lw=0.9, label="ripple p-p")
     ax3.axhline(r.max_ripple * 1e3, color="tab:purple", ls="--", lw=0.8, label="ripple limit")
+    if r.order.size:
+        least = float(r.figures.total_power[r.order].min())
+        ax1.axhline(least * (1 + r.options.tie_band), color="tab:green", ls=":", lw=0.8,
+                    label=f"tie band ({r.options.tie_band * 100:g} % above the least)")
     rec = r.recommendation
     if rec is not None:
         fk = rec.frequency_hz / 1e3
-        ax1.plot([fk], [rec.total_power_w], "o", color="tab:orange", ms=7, label=f"recommended {fk:.4g} kHz")
+        ax1.plot([fk], [rec.total_power_w], "o", color="tab:orange", ms=7,
+                 label=f"recommended {rec.frequency_hz:.0f} Hz")
         ax2.plot([fk], [rec.switch_power_w * 1e3], "o", color="tab:orange", ms=7)
         ax3.plot([fk], [rec.ripple_a * 1e3], "o", color="tab:orange", ms=7)
-    ax1.set_ylabel("worst-case total [W]")
+    ax1.set_ylabel("from the supply [W]")
     ax2.set_ylabel("switch power [mW]")
     ax3.set_ylabel("ripple [mA]")
     ax3.set_xlabel("PWM frequency [kHz]")

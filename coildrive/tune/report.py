@@ -9,7 +9,9 @@ from rich.table import Table
 
 from .. import __version__
 from ..console import print_cautions
+from ..design.result import ELEMENT_NAMES
 from ..jsondoc import document_head, json_ready
+from ..model.losses import HoldLosses
 from ..units import format_si
 from .sweep import Candidate, TuneResult
 
@@ -18,23 +20,56 @@ def _ma(amps: float) -> str:
     return f"{amps * 1e3:.4g}"
 
 
+def _watts(w: float) -> str:
+    """A power with an SI prefix and its sign (``-2.59 mW``)."""
+    return ("-" if w < 0 else "") + format_si(abs(w), "W", 3)
+
+
+def margin_line(r: TuneResult) -> str:
+    """How far apart the first two settings are in objective (empty with fewer than two)."""
+    m = r.first_two_margin
+    if m is None:
+        return ""
+    w, frac = m
+    return f"#2 - #1 = {_watts(w)} ({frac * 100:+.3g} %)"
+
+
+def ranking_lines(r: TuneResult) -> list[str]:
+    """How the table is ranked, in words, and the margin between the first two."""
+    o = r.options
+    lines = [f"ranked by total: all hold power drawn from the supply at the setting's worst corner "
+             f"(coil + sense + switch + every freewheel element); the {r.band} settings (*) within "
+             f"{o.tie_band * 100:g} % of the least total are ranked by switching loss, then closeness to "
+             f"hold.frequency ({r.drive.hold.frequency:.6g} Hz)"]
+    m = r.first_two_margin
+    if m is not None:
+        w, frac = m
+        lines.append(f"#2 draws {_watts(abs(w))} ({abs(frac) * 100:.3g} %) {'more' if w >= 0 else 'less'} "
+                     "than #1 from the supply")
+    return lines
+
+
 def ranked_table(r: TuneResult) -> Table:
     """The best feasible settings, best first (worst case over the corners)."""
     from rich import box
 
     t = Table(title=f"best {min(r.options.top, r.order.size)} of {r.order.size} feasible settings "
               f"({r.drive.name} on {r.drive.board.name})", box=box.SIMPLE_HEAD, pad_edge=False,
-              padding=(0, 0, 0, 1), show_edge=False)
-    for name in ("#", "f\nkHz", "compare\n/period", "level\nmA", "mean\nmA", "ripple\nmA", "coil\nW",
-                 "switch\nmW", "total\nW", "coil\ndegC"):
+              padding=0, show_edge=False)
+    for name in ("#", "f\nHz", "pre-\nscaler", "compare\n/period", "level\nmA", "max\nmA",
+                 "ripple\nmA", "coil\nW", "fw\nW", "switch\nmW", "total\nW", "coil\ndegC"):
         t.add_column(name, justify="right", no_wrap=True)
     for c in r.ranked():
-        t.add_row(str(c.rank), f"{c.frequency_hz / 1e3:.6g}", f"{c.compare_ticks}/{c.period_ticks}",
-                  f"{c.hold_current_a * 1e3:.4g}",
-                  f"{c.min_mean_current_a * 1e3:.4g}-{c.max_mean_current_a * 1e3:.4g}",
-                  f"{c.ripple_a * 1e3:.3g}", f"{c.coil_power_w:.4g}", f"{c.switch_power_w * 1e3:.3g}",
-                  f"{c.total_power_w:.6g}", f"{c.coil_temp_c:.1f}")
-    t.caption = "worst case over the corners (mean: its range)"
+        t.add_row(f"{c.rank}{'*' if c.in_tie_band else ''}", f"{c.frequency_hz:.0f}", str(c.prescaler),
+                  f"{c.compare_ticks}/{c.period_ticks}",
+                  f"{c.hold_current_a * 1e3:.4g}", f"{c.max_mean_current_a * 1e3:.4g}",
+                  f"{c.ripple_a * 1e3:.3g}", f"{c.coil_power_w:.3g}", f"{c.freewheel_power_w:.3g}",
+                  f"{c.switch_power_w * 1e3:.3g}", f"{c.total_power_w:.6g}", f"{c.coil_temp_c:.1f}")
+    t.caption = (f"worst case over the corners (max: highest mean current; fw: freewheel path); "
+                 f"* within {r.options.tie_band * 100:g} % of the least total")
+    margin = margin_line(r)
+    if margin:
+        t.caption += f"; {margin}"
     return t
 
 
@@ -48,21 +83,29 @@ def sweep_lines(r: TuneResult) -> list[str]:
         f"{format_si(r.max_frequency, 'Hz', 5)} (upper end: {r.max_frequency_source}) x {r.levels} hold "
         f"levels from {r.target_current:.4g} A ({o.margin:g} x {r.minimum_current:.4g} A, "
         f"{r.minimum_basis}) in steps of {o.level_step:.3g} = {r.points} settings x {len(r.grid)} corners "
-        f"in {r.seconds:.2f} s",
+        f"in {format_si(r.seconds, 's', 2)}",
         f"constraints: hold at every corner, ripple <= {_ma(r.max_ripple)} mA, >= {o.min_duty_steps} "
         f"compare steps, coil <= {r.drive.thermal.max_coil_temp:g} degC; {sw}",
     ]
 
 
 def recommendation_lines(c: Candidate) -> list[str]:
+    parts = c.worst_corner_powers_w
+    elements = ", ".join(f"{ELEMENT_NAMES[name]} {_watts(parts[name])}"
+                         for name in HoldLosses.ELEMENTS if parts[name] > 0)
     return [
-        f"recommended: {c.frequency_hz:.6g} Hz (prescaler {c.prescaler}, period {c.period_ticks}), "
+        f"recommended: {c.frequency_hz:.0f} Hz (prescaler {c.prescaler}, period {c.period_ticks}), "
         f"compare {c.compare_ticks} = duty {c.duty:.4f}, for a hold level of {c.hold_current_a:.4g} A",
         f"  mean current {c.min_mean_current_a:.4g}..{c.max_mean_current_a:.4g} A over the corners, "
         f"ripple <= {_ma(c.ripple_a)} mA",
-        f"  worst case: coil {c.coil_power_w:.4g} W, switch {c.switch_power_w:.3g} W "
-        f"(conduction {c.conduction_power_w:.3g} W, switching {c.switching_power_w:.3g} W), "
-        f"total {c.total_power_w:.5g} W at {c.worst_corner}",
+        f"  drawn from the supply: {c.total_power_w:.5g} W at {c.worst_corner} = coil "
+        f"{_watts(parts['coil'])} + sense {_watts(parts['sense'])} + switch "
+        f"{_watts(parts['switch_conduction'] + parts['switch_switching'])} (switching "
+        f"{_watts(parts['switch_switching'])}) + freewheel "
+        f"{_watts(sum(parts[name] for name in HoldLosses.ELEMENTS))}" + (f" ({elements})" if elements else ""),
+        f"  largest at any corner: coil {c.coil_power_w:.4g} W, freewheel {c.freewheel_power_w:.4g} W, "
+        f"switch {c.switch_power_w:.3g} W (conduction {c.conduction_power_w:.3g} W, switching "
+        f"{c.switching_power_w:.3g} W)",
         f"  coil settles at up to {c.coil_temp_c:.1f} degC ({c.hottest_corner})",
     ]
 
@@ -76,6 +119,8 @@ def print_tune(r: TuneResult, design=None, console: Console | None = None) -> No
         console.print(f"[bold red]{r.explanation}[/bold red]", highlight=False)
         return
     console.print(ranked_table(r))
+    for line in ranking_lines(r):
+        console.print(line, highlight=False)
     for line in recommendation_lines(r.recommendation):
         console.print(line, highlight=False)
     for note in r.notes:
@@ -113,6 +158,15 @@ def tune_dict(r: TuneResult, design=None) -> dict:
             "margin": o.margin, "target_current_a": r.target_current, "max_ripple_a": r.max_ripple,
             "min_duty_steps": o.min_duty_steps, "max_coil_temp_c": r.drive.thermal.max_coil_temp,
             "switching_loss_estimated": r.switching_estimated, "seconds": r.seconds,
+        },
+        "ranking": {
+            "objective": "all hold power drawn from the supply at the worst corner: coil + sense + "
+                         "switch (conduction + switching) + every freewheel element",
+            "tie_band": o.tie_band, "settings_in_band": r.band,
+            "tie_order": ["switching_power_w", "distance to hold.frequency"],
+            "file_frequency_hz": r.drive.hold.frequency,
+            "first_two_margin_w": None if r.first_two_margin is None else r.first_two_margin[0],
+            "first_two_margin_percent": None if r.first_two_margin is None else r.first_two_margin[1] * 100,
         },
         "recommendation": recommendation,
         "candidates": [c.to_dict() for c in r.ranked()],

@@ -1,14 +1,23 @@
 """Hold tuning, offline: the least-power hold setting that stays seated at every corner.
 
-:func:`tune` sweeps every PWM frequency the board's timer can make inside a range (each
-with the prescaler and period that give it the finest duty steps) and hold-current
-levels from the minimum the mechanics need upward. For every (frequency, level) it
-finds the smallest compare value that holds the level at every corner with the
-self-heating it causes -- the same definition as :func:`coildrive.design.design` -- and
-evaluates that setting at every corner: settled coil temperature, mean current range,
-ripple, coil power, switch conduction and switching loss. Constraints (hold, ripple,
-duty resolution, coil temperature, a compare below the period) decide feasibility; the
-feasible points are ranked by their worst-case total power (coil + switch).
+:func:`tune` sweeps every whole-Hz PWM frequency the board's timer makes exactly inside
+a range (``clock / (prescaler x period)`` a whole number of Hz, each with the prescaler
+and period that give it the finest duty steps) and hold-current levels from the minimum
+the mechanics need upward. For every (frequency, level) it finds the smallest compare
+value that holds the level at every corner with the self-heating it causes -- the same
+definition as :func:`coildrive.design.design` -- and evaluates that setting at every
+corner from the exact PWM steady state: settled coil temperature, mean current range,
+ripple and the power of every element the hold current flows through
+(:func:`coildrive.model.losses.hold_losses`). Constraints (hold, ripple, duty
+resolution, coil temperature, a compare below the period) decide feasibility.
+
+The objective is all the hold power drawn from the supply, at the worst corner: coil +
+sense resistor + switch (conduction and switching) + every freewheel element (diode,
+Zener, resistor, clamp, or the diode and bypass switch of split decay). Feasible
+settings within ``tie_band`` (1 %) of the least objective are ranked by switching loss,
+then by closeness to the drive file's ``hold.frequency``; the rest follow by objective.
+The duty at each corner is one array (:func:`corner_duties`): one duty for all corners
+under a fixed-duty hold.
 
 The sweep knows nothing of files or the CLI (the live bench tuning will reuse
 :class:`TuneOptions`, :func:`minimum_hold_current` and :func:`evaluate_settings`).
@@ -33,7 +42,7 @@ from ..design.timer import MIN_PERIOD_TICKS, solve_timer
 from ..errors import InputError
 from ..jsondoc import json_ready
 from ..model.circuit import COPPER_ALPHA, loop
-from ..model.losses import hold_losses
+from ..model.losses import HoldLosses, hold_losses
 from ..model.pwm import duty_for_mean, pwm_steady_state
 from ..model.thermal import CEILING_C, closed_form_temperature, coil_r20
 
@@ -46,6 +55,10 @@ DEFAULT_MAX_FREQUENCY = 100_000.0
 DEFAULT_MIN_DUTY_STEPS = 64
 #: Default ripple limit as a fraction of the target hold current (our choice).
 DEFAULT_RIPPLE_FRACTION = 0.2
+#: Settings within this fraction of the least objective count as equal in power and
+#: are ranked by switching loss, then closeness to ``hold.frequency`` (our choice: a
+#: difference that small is not worth a louder switch or leaving the file's frequency).
+DEFAULT_TIE_BAND = 0.01
 #: Largest sweep accepted (settings x corners), to keep memory and time bounded.
 MAX_POINTS = 20_000_000
 #: Elements per vectorised chunk (fits the caches; far faster than one huge array).
@@ -66,7 +79,9 @@ class TuneOptions:
     (see :func:`minimum_hold_current`); ``levels`` hold-current levels, each
     ``level_step`` (a fraction) above the previous; ``max_ripple`` in A peak-to-peak
     (0: ``max_ripple_fraction`` of the target hold current); ``min_duty_steps`` compare
-    counts per period at least; ``top`` candidates kept in the ranked list.
+    counts per period at least; ``top`` candidates kept in the ranked list;
+    ``tie_band`` the fraction of the least objective within which settings count as
+    equal (see the module docstring).
     """
 
     min_frequency: float = DEFAULT_MIN_FREQUENCY
@@ -78,6 +93,7 @@ class TuneOptions:
     max_ripple_fraction: float = DEFAULT_RIPPLE_FRACTION
     min_duty_steps: int = DEFAULT_MIN_DUTY_STEPS
     top: int = 20
+    tie_band: float = DEFAULT_TIE_BAND
 
     def check(self) -> None:
         """Raise :class:`InputError` naming the option for a value out of range."""
@@ -103,6 +119,8 @@ class TuneOptions:
             raise InputError("--min-steps", "", f"{self.min_duty_steps} is below 2")
         if self.top < 1:
             raise InputError("--top", "", f"{self.top} is below 1")
+        if not 0 <= self.tie_band < 1:
+            raise InputError("tie_band", "", f"{self.tie_band:g} is out of range, expected 0 <= band < 1")
 
 
 def minimum_hold_current(drive: Drive) -> tuple[float, str]:
@@ -130,21 +148,28 @@ def frequency_range(drive: Drive, options: TuneOptions) -> tuple[float, float, s
     return options.min_frequency, high, src
 
 
-def realisable_frequencies(timer: Timer, low: float, high: float):
+def realisable_frequencies(timer: Timer, low: float, high: float, whole_hz: bool = True):
     """Every frequency in ``low..high`` Hz the timer makes exactly, finest steps first.
 
     A period of the PWM is ``M = prescaler x period_ticks`` clock counts. For each
-    whole ``M`` with ``clock / M`` in range, the smallest allowed prescaler that divides
-    ``M`` with ``period_ticks <= 2**bits`` (and at least :data:`MIN_PERIOD_TICKS`)
-    gives that frequency its longest period -- its finest duty resolution. Returns
-    ``(frequency_hz, prescaler, period_ticks)`` arrays, ascending in frequency.
+    whole ``M`` with ``clock / M`` in range -- and with ``whole_hz`` (the default, what
+    :func:`tune` offers) only those where ``M`` divides the clock, so that the frequency
+    is a whole number of Hz that reads back from a drive file exactly -- the smallest
+    allowed prescaler that divides ``M`` with ``period_ticks <= 2**bits`` (and at least
+    :data:`MIN_PERIOD_TICKS`) gives that frequency its longest period -- its finest duty
+    resolution. Returns ``(frequency_hz, prescaler, period_ticks)`` arrays, ascending in
+    frequency. A clock that is not a whole number of Hz makes no whole-Hz frequency.
     """
     limit = 2**timer.bits
     m_lo = max(MIN_PERIOD_TICKS, math.ceil(timer.clock / high - 1e-9))
     m_hi = math.floor(timer.clock / low + 1e-9)
+    if whole_hz and float(timer.clock) != math.floor(timer.clock):
+        m_hi = m_lo - 1
     if m_hi < m_lo:
         return np.zeros(0), np.zeros(0, np.int64), np.zeros(0, np.int64)
     m = np.arange(m_lo, m_hi + 1, dtype=np.int64)
+    if whole_hz:
+        m = m[int(timer.clock) % m == 0]
     best = np.zeros(m.size, np.int64)
     if timer.prescalers:
         ratios = iter(sorted(set(timer.prescalers)))
@@ -162,7 +187,7 @@ def realisable_frequencies(timer: Timer, low: float, high: float):
     ok = best > 0
     m, best = m[ok], best[ok]
     period = m // best
-    freq = timer.clock / m.astype(float)
+    freq = (int(timer.clock) // m).astype(float) if whole_hz else timer.clock / m.astype(float)
     order = np.argsort(freq)
     return freq[order], best[order], period[order]
 
@@ -251,16 +276,25 @@ def settle_voltage_mode(drive: Drive, supply, ambient, r_factor, l_factor, duty,
     return temp, lp, ss
 
 
+#: The hold's power figures of a setting, in the order the objective sums them (W):
+#: the elements of :class:`coildrive.model.losses.HoldLosses` the supply feeds.
+POWER_PARTS = ("coil", "sense", "switch_conduction", "switch_switching") + HoldLosses.ELEMENTS
+
+
 @dataclass(frozen=True)
 class SettingFigures:
     """Figures of hold settings over the corners (arrays over settings; worst over corners).
 
     Currents in A, powers in W, temperatures in degC, all from
-    :func:`coildrive.model.losses.hold_losses`: ``switch_power`` is conduction
-    (``R_switch int_on i^2 dt / T``) plus the switching estimate from the switch's
-    ``rise_time``/``fall_time`` (``V I t / 2`` per edge); ``total_power`` is
-    the largest coil + switch power of any one corner; ``worst_corner``/``hottest_corner``
-    index the corner of the largest total power / coil temperature.
+    :func:`coildrive.model.losses.hold_losses` at each corner's exact PWM steady state:
+    ``switch_power`` is conduction (``R_switch int_on i^2 dt / T``) plus the switching
+    estimate from the switch's ``rise_time``/``fall_time`` (``V I t / 2`` per edge);
+    ``coil_power``, ``sense_power``, ``conduction_power``, ``switching_power``,
+    ``switch_power`` and ``freewheel_power`` are each the largest of any corner.
+    ``total_power`` -- the objective -- is the largest over the corners of all the hold
+    power drawn from the supply at one corner (every entry of :data:`POWER_PARTS`);
+    ``parts`` (settings x :data:`POWER_PARTS`) is its split at that corner, which
+    ``worst_corner`` indexes; ``hottest_corner`` indexes the hottest coil.
     """
 
     min_mean: np.ndarray
@@ -274,50 +308,79 @@ class SettingFigures:
     coil_temp: np.ndarray
     worst_corner: np.ndarray
     hottest_corner: np.ndarray
+    sense_power: np.ndarray
+    freewheel_power: np.ndarray
+    parts: np.ndarray
+
+
+def corner_duties(drive: Drive, grid: CornerGrid, compare, period) -> np.ndarray:
+    """The duty the firmware runs at every corner for each setting: (settings x corners).
+
+    The one place the sweep turns a setting's timer counts into duties. A fixed-duty hold
+    runs ``compare / period`` at every corner; a hold whose compare follows the supply
+    returns each corner's own duty here, and the objective, the feasibility and the
+    figures follow it (:func:`evaluate_settings` takes this array as it is). ``drive``
+    says which hold the firmware runs; today every voltage-mode hold here is fixed-duty.
+    """
+    duty = np.asarray(compare, float) / np.asarray(period, float)
+    return np.broadcast_to(duty.reshape(-1, 1), (duty.size, len(grid)))
 
 
 def evaluate_settings(drive: Drive, grid: CornerGrid, duty, frequency, chunk: int = CHUNK
                       ) -> SettingFigures:
-    """Every fixed-duty setting (``duty``, ``frequency`` Hz: arrays over settings) at every
-    corner of ``grid`` with self-heating, reduced to the worst over the corners."""
-    duty = np.asarray(duty, float).ravel()
-    frequency = np.broadcast_to(np.asarray(frequency, float), duty.shape).ravel()
-    n, c = duty.size, len(grid)
+    """Every hold setting at every corner of ``grid`` with self-heating, reduced to the
+    worst over the corners.
+
+    ``duty`` is the duty at each corner, (settings x corners) as :func:`corner_duties`
+    gives it (a flat array over settings means the same duty at every corner);
+    ``frequency`` Hz, an array over settings.
+    """
+    c = len(grid)
+    duty = np.asarray(duty, float)
+    duty = duty.reshape(-1, 1) if duty.ndim < 2 else duty
+    frequency = np.asarray(frequency, float).ravel()
+    n = max(duty.shape[0], frequency.size)
+    duty, frequency = np.broadcast_to(duty, (n, c)), np.broadcast_to(frequency, (n,))
     names = ("min_mean", "max_mean", "ripple", "coil_power", "conduction_power", "switching_power",
-             "switch_power", "total_power", "coil_temp")
+             "switch_power", "total_power", "coil_temp", "sense_power", "freewheel_power")
     out = {k: np.empty(n) for k in names}
+    parts = np.empty((n, len(POWER_PARTS)))
     worst = np.empty(n, np.int64)
     hottest = np.empty(n, np.int64)
     per = max(1, chunk // c)
     for s in range(0, n, per):
         e = min(n, s + per)
         m = e - s
-        d = np.repeat(duty[s:e], c)
+        d = duty[s:e].ravel()
         f = np.repeat(frequency[s:e], c)
         sup, amb = np.tile(grid.supply, m), np.tile(grid.ambient, m)
         rf, lf = np.tile(grid.r_factor, m), np.tile(grid.l_factor, m)
         temp, lp, ss = settle_voltage_mode(drive, sup, amb, rf, lf, d, f)
         loss = hold_losses(drive, lp, ss, f, drive.switch.rise_time, drive.switch.fall_time)
-        coil, cond, swl = loss.coil, loss.switch_conduction, loss.switch_switching
-        total = coil + cond + swl
+        split = np.stack([np.broadcast_to(getattr(loss, name), d.shape) for name in POWER_PARTS])
+        total = split.sum(axis=0)
 
         def grid2(x):
-            return x.reshape(m, c)
+            return np.reshape(x, (m, c))
         mean = grid2(ss.mean)
         out["min_mean"][s:e] = mean.min(axis=1)
         out["max_mean"][s:e] = mean.max(axis=1)
         out["ripple"][s:e] = grid2(ss.ripple).max(axis=1)
-        out["coil_power"][s:e] = grid2(coil).max(axis=1)
-        out["conduction_power"][s:e] = grid2(cond).max(axis=1)
-        out["switching_power"][s:e] = grid2(swl).max(axis=1)
-        out["switch_power"][s:e] = grid2(cond + swl).max(axis=1)
+        out["coil_power"][s:e] = grid2(loss.coil).max(axis=1)
+        out["sense_power"][s:e] = grid2(loss.sense).max(axis=1)
+        out["conduction_power"][s:e] = grid2(loss.switch_conduction).max(axis=1)
+        out["switching_power"][s:e] = grid2(loss.switch_switching).max(axis=1)
+        out["switch_power"][s:e] = grid2(loss.switch).max(axis=1)
+        out["freewheel_power"][s:e] = grid2(loss.freewheel).max(axis=1)
         tt = grid2(total)
-        out["total_power"][s:e] = tt.max(axis=1)
-        worst[s:e] = tt.argmax(axis=1)
+        k = tt.argmax(axis=1)
+        out["total_power"][s:e] = tt[np.arange(m), k]
+        worst[s:e] = k
+        parts[s:e] = split.reshape(len(POWER_PARTS), m, c)[:, np.arange(m), k].T
         th = grid2(temp)
         out["coil_temp"][s:e] = th.max(axis=1)
         hottest[s:e] = th.argmax(axis=1)
-    return SettingFigures(**out, worst_corner=worst, hottest_corner=hottest)
+    return SettingFigures(**out, worst_corner=worst, hottest_corner=hottest, parts=parts)
 
 
 def _probe_corners(grid: CornerGrid) -> np.ndarray:
@@ -375,7 +438,10 @@ class Candidate:
 
     ``hold_current_a`` is the level the compare value was chosen for; ``rank`` counts
     from 1 among the feasible settings (0: infeasible); ``failed`` names the
-    constraints it misses.
+    constraints it misses. ``total_power_w`` is the objective: all the hold power drawn
+    from the supply at ``worst_corner``, split by element in ``worst_corner_powers_w``
+    (keys :data:`POWER_PARTS`); the other powers are each the largest of any corner.
+    ``in_tie_band``: within ``tie_band`` of the least objective (see :func:`tune`).
     """
 
     rank: int
@@ -398,6 +464,10 @@ class Candidate:
     hottest_corner: str
     feasible: bool
     failed: list[str]
+    sense_power_w: float
+    freewheel_power_w: float
+    worst_corner_powers_w: dict
+    in_tie_band: bool
 
     def to_dict(self) -> dict:
         return json_ready(dataclasses.asdict(self))
@@ -407,7 +477,8 @@ class Candidate:
 class TuneResult:
     """The sweep, its ranking and the recommendation (plain data; arrays over settings).
 
-    ``order`` indexes the feasible settings best first. ``ok`` masks per constraint
+    ``order`` indexes the feasible settings best first; the first ``band`` of them are
+    within ``options.tie_band`` of the least objective. ``ok`` masks per constraint
     (see :data:`CONSTRAINTS`). ``recommendation`` is the best feasible setting or
     ``None``; then ``explanation`` says which constraint bound.
     """
@@ -436,12 +507,23 @@ class TuneResult:
     recommendation: Candidate | None
     explanation: str
     seconds: float
+    band: int = 0
     notes: list[str] = field(default_factory=list)
 
     @property
     def points(self) -> int:
         """Settings evaluated (after merging levels that gave the same compare value)."""
         return int(self.frequency.size)
+
+    @property
+    def first_two_margin(self) -> tuple[float, float] | None:
+        """Objective of rank 2 minus rank 1: ``(W, fraction of rank 1)``; ``None`` with
+        fewer than two feasible settings. Negative when rank 1 won inside the tie band
+        on switching loss or closeness to ``hold.frequency`` while drawing a little more."""
+        if self.order.size < 2:
+            return None
+        first, second = (float(self.figures.total_power[k]) for k in self.order[:2])
+        return second - first, (second - first) / first
 
     @property
     def switching_estimated(self) -> bool:
@@ -462,7 +544,10 @@ class TuneResult:
             total_power_w=float(fg.total_power[k]), coil_temp_c=float(fg.coil_temp[k]),
             worst_corner=self.grid.label(int(fg.worst_corner[k])),
             hottest_corner=self.grid.label(int(fg.hottest_corner[k])),
-            feasible=bool(self.feasible[k]), failed=failed)
+            feasible=bool(self.feasible[k]), failed=failed,
+            sense_power_w=float(fg.sense_power[k]), freewheel_power_w=float(fg.freewheel_power[k]),
+            worst_corner_powers_w={name: float(w) for name, w in zip(POWER_PARTS, fg.parts[k])},
+            in_tie_band=bool(np.any(self.order[:self.band] == k)))
 
     def ranked(self, count: int | None = None) -> list[Candidate]:
         """The best ``count`` feasible settings (default ``options.top``), best first."""
@@ -486,26 +571,28 @@ def _exact(x: float) -> str:
 
 
 def recommended_hold(drive: Drive, c: Candidate) -> Hold:
-    """``[hold]`` of a candidate: its level, its exact frequency, and a frequency tolerance
-    tight enough that the timer solver picks the candidate's own prescaler and period."""
+    """``[hold]`` of a candidate: its level, its whole-Hz frequency, and a frequency
+    tolerance tight enough that the timer solver picks the candidate's own prescaler and
+    period."""
     timer = drive.board.timer
     tol = drive.hold.frequency_tolerance
     s = solve_timer(timer.clock, timer.bits, timer.prescaler_max, c.frequency_hz, tol, timer.prescalers)
     if (s.prescaler, s.period_ticks) != (c.prescaler, c.period_ticks):
         tol = 1e-9
     return dataclasses.replace(drive.hold, current=float(_exact(c.hold_current_a)),
-                               frequency=float(_exact(c.frequency_hz)), frequency_tolerance=tol)
+                               frequency=float(c.frequency_hz), frequency_tolerance=tol)
 
 
 def hold_toml(drive: Drive, c: Candidate) -> str:
-    """The ``[hold]`` section for a candidate (bare SI numbers: they read back exactly)."""
+    """The ``[hold]`` section for a candidate (bare SI numbers: they read back exactly;
+    the frequency is a whole number of Hz, with its timer counts in the comment)."""
     h = recommended_hold(drive, c)
     clock = drive.board.timer.clock
     lines = [
         "[hold]",
         f"current = {_exact(h.current)}  # A ({c.hold_current_a * 1e3:.5g} mA)",
-        f"frequency = {_exact(h.frequency)}  # Hz = {clock / 1e6:.6g} MHz / ({c.prescaler} x {c.period_ticks}),"
-        f" compare {c.compare_ticks}",
+        f"frequency = {round(h.frequency)}  # Hz = {clock / 1e6:.6g} MHz / (prescaler {c.prescaler} x period "
+        f"{c.period_ticks}), compare {c.compare_ticks}",
     ]
     if h.mode != "voltage":
         lines.append(f'mode = "{h.mode}"')
@@ -533,7 +620,7 @@ def tune(drive: Drive, options: TuneOptions | None = None) -> TuneResult:
     if freq.size == 0:
         raise InputError("--max-frequency" if f_src == "--max-frequency" else "--min-frequency", "",
                          f"the timer ({drive.board.timer.clock:.6g} Hz clock, {drive.board.timer.bits}-bit) "
-                         f"makes no frequency in {f_lo:.6g}..{f_hi:.6g} Hz")
+                         f"makes no whole-Hz frequency in {f_lo:.6g}..{f_hi:.6g} Hz")
     i_min, basis = minimum_hold_current(drive)
     target = options.margin * i_min
     levels = target * (1.0 + options.level_step * np.arange(options.levels))
@@ -555,14 +642,14 @@ def tune(drive: Drive, options: TuneOptions | None = None) -> TuneResult:
     comp = np.clip(comp, 0, n_s)
 
     # Evaluate at every corner; add counts where another corner falls short (rare).
-    figs = evaluate_settings(drive, grid, comp / n_s, f_s)
+    figs = evaluate_settings(drive, grid, corner_duties(drive, grid, comp, n_s), f_s)
     for _ in range(64):
         short = (figs.min_mean < lvl) & (comp < n_s) & reach
         if not np.any(short):
             break
         idx = np.flatnonzero(short)
         comp[idx] += 1
-        sub = evaluate_settings(drive, grid, comp[idx] / n_s[idx], f_s[idx])
+        sub = evaluate_settings(drive, grid, corner_duties(drive, grid, comp[idx], n_s[idx]), f_s[idx])
         for name in dataclasses.fields(SettingFigures):
             getattr(figs, name.name)[idx] = getattr(sub, name.name)
 
@@ -582,18 +669,37 @@ def tune(drive: Drive, options: TuneOptions | None = None) -> TuneResult:
         "coil_temp": np.isfinite(figs.coil_temp) & (figs.coil_temp <= drive.thermal.max_coil_temp),
     }
     feasible = np.logical_and.reduce([ok[k] for k in CONSTRAINTS])
-    idx = np.flatnonzero(feasible)
-    order = idx[np.lexsort((f_s[idx], figs.ripple[idx], figs.total_power[idx]))]
+    order, band = rank_settings(np.flatnonzero(feasible), figs, f_s, drive.hold.frequency, options.tie_band)
     result = TuneResult(
         drive=drive, options=options, grid=grid, min_frequency=f_lo, max_frequency=f_hi,
         max_frequency_source=f_src, minimum_current=i_min, minimum_basis=basis, target_current=target,
         max_ripple=max_ripple, frequency=f_s, prescaler=p_s, period=n_s, compare=comp, level=lvl,
         figures=figs, ok=ok, feasible=feasible, order=order, frequencies=n_f, levels=n_k,
-        recommendation=None, explanation="", seconds=0.0)
+        recommendation=None, explanation="", seconds=0.0, band=band)
     rec = result.candidate(int(order[0]), 1) if order.size else None
     explanation = "" if rec is not None else _explain(result)
     return dataclasses.replace(result, recommendation=rec, explanation=explanation,
                                seconds=time.perf_counter() - t0)
+
+
+def rank_settings(idx: np.ndarray, figs: SettingFigures, frequency: np.ndarray, file_frequency: float,
+                  tie_band: float) -> tuple[np.ndarray, int]:
+    """Order the settings ``idx`` best first; return ``(order, settings in the tie band)``.
+
+    Settings whose objective (``figs.total_power``) is within ``tie_band`` of the least
+    come first, by switching loss (the largest of any corner), then by distance to
+    ``file_frequency`` Hz, then objective and frequency (see :data:`DEFAULT_TIE_BAND`).
+    The rest follow by objective, then ripple, then frequency.
+    """
+    if idx.size == 0:
+        return idx, 0
+    total = figs.total_power[idx]
+    inside = total <= total.min() * (1.0 + tie_band)
+    a, b = idx[inside], idx[~inside]
+    a = a[np.lexsort((frequency[a], figs.total_power[a], np.abs(frequency[a] - file_frequency),
+                      figs.switching_power[a]))]
+    b = b[np.lexsort((frequency[b], figs.ripple[b], figs.total_power[b]))]
+    return np.concatenate([a, b]), int(a.size)
 
 
 def _explain(r: TuneResult) -> str:
@@ -610,7 +716,7 @@ def _explain(r: TuneResult) -> str:
         if name == "ripple":
             k = b[np.argmin(fg.ripple[b])]
             why = (f"ripple <= {r.max_ripple * 1e3:.4g} mA (--max-ripple): the least ripple there is "
-                   f"{fg.ripple[k] * 1e3:.4g} mA at {r.frequency[k]:.6g} Hz — allow more ripple or a "
+                   f"{fg.ripple[k] * 1e3:.4g} mA at {r.frequency[k]:.0f} Hz — allow more ripple or a "
                    "higher --max-frequency")
         elif name == "coil_temp":
             k = b[np.argmin(fg.coil_temp[b])]
@@ -619,7 +725,7 @@ def _explain(r: TuneResult) -> str:
         elif name == "duty_steps":
             k = b[np.argmax(r.period[b])]
             why = (f"at least {r.options.min_duty_steps} compare steps (--min-steps): the most is "
-                   f"{r.period[k]} at {r.frequency[k]:.6g} Hz — a lower frequency or a faster timer clock")
+                   f"{r.period[k]} at {r.frequency[k]:.0f} Hz — a lower frequency or a faster timer clock")
         elif name == "hold":
             why = (f"hold >= {r.target_current:.4g} A at every corner: out of reach even at full duty "
                    "— raise the minimum supply or lower the hold current")
