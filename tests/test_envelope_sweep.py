@@ -180,16 +180,33 @@ def test_grid_covers_every_example(sweeps):
         assert s.failed_design is not None or s.points >= 2 * TEMPERATURES * SUPPLIES * 2, s
 
 
-@pytest.mark.parametrize("check", CHECKS)
-@pytest.mark.parametrize("example", [p.stem for p in EXAMPLE_FILES])
+#: What fails today, before the design of issue 11 (worst grid point as measured here).
+#: Strict: when the design is fixed the test passes unexpectedly and fails, so the entry
+#: must go -- this list always says what is still open.
+ISSUE_11_OPEN = {
+    ("demo-valve", "hold"): "0.2182 A < 0.22 A: 23.19 V, coil 71.4 degC, R x1.07, L x0.85",
+    ("demo-valve", "over_current"): "end of peak 1.3306 A reads 3303 >= 3266: 28 V, -10 degC, R x0.93, L x0.85",
+    ("door-latch-24v", "hold"): "0.2995 A < 0.3 A: 22.87 V, coil 64.7 degC, R x1.05, L x1.1",
+    ("locker-latch-12v", "hold"): "0.2308 A < 0.2311 A: 11.27 V, coil 66.7 degC, R x1.07, L x1.1",
+    ("pinch-valve-48v", "hold"): "0.2480 A < 0.25 A: 48.4 V, coil 61.4 degC, R x1.08, L x0.85",
+    ("wash-valve-split-24v", "hold"): "0.1995 A < 0.2 A: 24.99 V, coil 62.4 degC, R x1.07, L x1.15",
+}
+
+
+def _cases():
+    for path in EXAMPLE_FILES:
+        for check in CHECKS:
+            known = ISSUE_11_OPEN.get((path.stem, check))
+            marks = [] if known is None else [pytest.mark.xfail(
+                strict=True, raises=AssertionError, reason=f"issue 11 open: {known}")]
+            yield pytest.param(path.stem, check, marks=marks, id=f"{path.stem}-{check}")
+
+
+@pytest.mark.parametrize("example,check", list(_cases()))
 def test_envelope(sweeps, example, check):
     s = sweeps[example]
     if s.failed_design is not None:
-        # A design that fails its checks writes no header; it must say which check failed.
-        doc = json.loads(s.failed_design)
-        failing = [c for c in doc.get("checks", []) if not c["ok"]]
-        assert failing and all(c["name"] and c["detail"] for c in failing), (
-            f"{example}: design exited 1 without naming a failing check:\n{s.failed_design}")
+        _assert_names_failing_check(s)
         return
     if check in s.skipped:
         pytest.skip(s.skipped[check])
@@ -201,8 +218,58 @@ def test_envelope(sweeps, example, check):
         f"{example} ({s.regulation} hold; hottest coil {_hot_text(s)}): {worst.text}")
 
 
+def _assert_names_failing_check(s: Sweep) -> None:
+    """A design that fails its checks writes no header; it must say which check failed
+    (``design --json``: a check with ``ok`` false and severity ``error``, with a detail)."""
+    doc = json.loads(s.failed_design)
+    failing = [c for c in doc.get("checks", []) if not c["ok"] and c.get("severity", "error") == "error"]
+    assert failing and all(c["name"] and c["detail"] for c in failing), (
+        f"{s.name}: design exited 1 without naming a failing check:\n{s.failed_design}")
+
+
+def test_failed_design_passes_only_by_naming_its_check(tmp_path):
+    # The branch above on a design that must fail: the demo asked for a pull-in current
+    # its coil cannot reach at the low supply (5 A from 20 V into 22 ohm).
+    require_tool("gcc")
+    text = (EXAMPLES / "demo-valve.toml").read_text()
+    board = EXAMPLES.parent / "boards" / "lab-m32-zener.toml"
+    text = text.replace('board = "lab-m32-zener"', f'board = "{board}"')
+    text = text.replace('current = "0.55 A"', 'current = "5 A"')
+    path = tmp_path / "unreachable.toml"
+    path.write_text(text)
+    s = sweep(path)
+    assert s.failed_design is not None and s.points == 0, "precondition: the design fails"
+    _assert_names_failing_check(s)
+    assert "pull_in" in s.failed_design
+
+
 def _hot_text(s: Sweep) -> str:
     return ", ".join(f"R x{r:.2f}: {t:.1f} degC" for r, (t, _, _) in s.hot.items())
+
+
+# --------------------------------------------------------------------------- the reference itself
+def test_reference_copper_and_rl_step(tmp_path):
+    # IEC 60028: R_20 (1 + 0.00393 (T - 20)); a coil specified at 75 degC is brought back
+    # to 20 degC first, so at 75 degC it reads its own value and at 20 degC R_75 / 1.21615.
+    assert ref.copper_resistance(30.0, 75.0, 75.0) == pytest.approx(30.0, rel=1e-15)
+    assert ref.copper_resistance(30.0, 75.0, 20.0) == pytest.approx(30.0 / (1 + 0.00393 * 55),
+                                                                    rel=1e-15)
+    assert ref.copper_resistance(22.0, 20.0, 120.0) == pytest.approx(22.0 * 1.393, rel=1e-15)
+    # Textbook RL step (e.g. Hayt & Kemmerly, Engineering Circuit Analysis, first-order
+    # circuits): i(t) = V/R (1 - exp(-t R/L)); the integration agrees to 1e-7.
+    drive = load_drive(EXAMPLES / "demo-valve.toml")
+    c = ref.circuit(drive, 24.0, 20.0)
+    times = [1e-4, 1e-3, 5e-3, 2e-2]
+    v, r = c.on.v, c.on.r
+    for t, i in zip(times, ref.rise_current(c, times)):
+        assert i == pytest.approx(v / r * (1 - math.exp(-t * r / c.inductance)), rel=1e-7), t
+    t_pull = ref.time_to_current(c, drive.pull_in.current)
+    assert t_pull == pytest.approx(-c.inductance / r * math.log(1 - drive.pull_in.current * r / v),
+                                   rel=1e-7)
+    assert ref.time_to_current(c, 1.01 * v / r) is None, "above the steady current: never"
+    # The one-way decay stops at zero and stays there.
+    stop = ref.run(c.release_off, c.inductance, 0.5, 1.0)
+    assert stop.current == 0.0 and stop.charge > 0.0
 
 
 # --------------------------------------------------------------------------- ngspice
