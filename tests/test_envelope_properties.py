@@ -93,7 +93,8 @@ def test_hotter_coil_never_shortens_pull_in(name):
         temp, r, l = coil
         t1, t2 = temp, min(temp + hotter, drive.thermal.max_coil_temp)
         where = f"{name} at {supply:.3f} V, R x{r:.4f}, L x{l:.4f}: coil {t1:.2f} -> {t2:.2f} degC"
-        # scipy solve_ivp (the reference): time to the pull-in current, an event.
+        # scipy solve_ivp (the reference): time to the pull-in current, an event. (With an
+        # [armature] the plain RL rise takes the seated inductance: the property is R(T)'s.)
         cold, hot = (ref.time_to_current(ref.circuit(drive, supply, t, r, l), drive.pull_in.current)
                      for t in (t1, t2))
         assert _later(cold, hot), f"{where}: reference pull-in {cold} s -> {hot} s"
