@@ -36,7 +36,8 @@ from coildrive.design.evaluate import evaluate
 from coildrive.model.pwm import duty_for_mean, duty_for_mean_bisect, pwm_steady_state
 from coildrive.model.circuit import loop
 from coildrive.tune.sweep import (TuneOptions, minimum_hold_current, rank_settings,
-                                  realisable_frequencies, recommended_design, tune)
+                                  realisable_frequencies, recommended_design, recommended_hold, tune)
+from circuit_reference import iec60028_resistance
 from conftest import BOARDS, EXAMPLES
 
 #: Relative agreement with evaluate(): its self-heating stops within 1e-4 K (thermal.py);
@@ -45,7 +46,7 @@ RTOL = 2e-6
 
 
 def _demo(**hold):
-    d = load_drive(EXAMPLES / "demo-valve.toml")
+    d = load_drive(EXAMPLES / "reagent-valve-zener-24v.toml")
     return dataclasses.replace(d, hold=dataclasses.replace(d.hold, **hold)) if hold else d
 
 
@@ -98,11 +99,19 @@ def demo_result():
     return tune(_demo(), TuneOptions(levels=4, level_step=0.1))
 
 
+def _fast(r) -> np.ndarray:
+    """The settings the fast sweep alone evaluated (the best ones are evaluated again as
+    the design evaluates them: test_best_settings_are_what_the_design_reports)."""
+    return np.array([k for k in range(r.points) if k not in r.exact_labels], int)
+
+
 def test_sweep_matches_closed_form_point_by_point(demo_result):
     r = demo_result
     drive, grid = r.drive, r.grid
-    picks = [int(r.order[0]), int(r.order[len(r.order) // 2]), int(np.flatnonzero(~r.feasible)[0]),
-             int(np.argmax(r.frequency)), int(np.argmin(r.frequency))]
+    fast = _fast(r)
+    feas = [k for k in r.order if k in set(fast.tolist())]
+    picks = [int(feas[0]), int(feas[len(feas) // 2]),
+             int(fast[np.argmax(r.frequency[fast])]), int(fast[np.argmin(r.frequency[fast])])]
     for k in picks:
         duty, f = r.compare[k] / r.period[k], r.frequency[k]
         res = evaluate(drive, grid.supply, grid.ambient, grid.r_factor, grid.l_factor, duty, f, 0.0)
@@ -134,10 +143,27 @@ def test_sweep_matches_closed_form_point_by_point(demo_result):
         assert np.sum(fg.parts[k]) == pytest.approx(fg.total_power[k], rel=1e-12), where
 
 
+def test_best_settings_are_what_the_design_reports(demo_result):
+    """The leading settings: compare, currents, ripple, powers and coil temperature are the
+    design's own for that [hold] (coildrive.design, the envelope under the regulation)."""
+    r = demo_result
+    for c in r.ranked(5):
+        d = design(dataclasses.replace(r.drive, hold=recommended_hold(r.drive, c)))
+        assert (d.timer.prescaler, d.timer.period_ticks, d.timer.compare_ticks) == \
+            (c.prescaler, c.period_ticks, c.compare_ticks), c
+        assert c.min_mean_current_a == pytest.approx(d.hold.min_mean_current_a, rel=1e-12)
+        assert c.max_mean_current_a == pytest.approx(d.hold.max_mean_current_a, rel=1e-12)
+        assert c.coil_temp_c == pytest.approx(d.hold.coil_temp_c, rel=1e-12)
+        assert c.coil_power_w == pytest.approx(d.hold.coil_power_w, rel=1e-12)
+        assert c.freewheel_power_w == pytest.approx(d.hold.freewheel_power_w, rel=1e-12)
+        assert c.switch_power_w == pytest.approx(d.hold.switch_power_w, rel=1e-12)
+
+
 def test_each_compare_is_the_smallest_that_holds_its_level(demo_result):
     r = demo_result
     grid = r.grid
-    for k in list(r.order[:3]) + [int(np.argmax(r.level))]:
+    fast = _fast(r)
+    for k in list(fast[:3]) + [int(fast[np.argmax(r.level[fast])])]:
         k = int(k)
         f, n, c = r.frequency[k], r.period[k], r.compare[k]
         args = (r.drive, grid.supply, grid.ambient, grid.r_factor, grid.l_factor)
@@ -157,9 +183,11 @@ def test_levels_start_at_the_minimum_and_rise(demo_result):
 
 def test_ranking_is_by_objective_with_ties_by_switching_then_frequency(demo_result):
     r = demo_result
-    ranked = r.ranked(r.order.size)
+    lead = [int(k) for k in r.order if int(k) in r.exact_labels]  # evaluated as the design does
+    assert lead == [int(k) for k in r.order[:len(lead)]], "the exactly evaluated settings lead"
+    ranked = r.ranked(len(lead))
     assert all(c.feasible and not c.failed for c in ranked)
-    least = r.figures.total_power[r.feasible].min()
+    least = min(c.total_power_w for c in ranked)
     band = [c for c in ranked if c.in_tie_band]
     assert band == ranked[:r.band] and len(band) == r.band >= 2
     assert all(c.total_power_w <= least * 1.01 for c in band)
@@ -232,7 +260,7 @@ def _objective_of_design(d, drive) -> float:
                for c in d.corners)
 
 
-@pytest.mark.parametrize("example", ["demo-valve.toml", "wash-valve-split-24v.toml"])
+@pytest.mark.parametrize("example", ["reagent-valve-zener-24v.toml", "wash-valve-split-24v.toml"])
 def test_objective_is_the_sum_of_the_designs_element_powers(example):
     """Independent path: design() of the recommended [hold] reports each element's power
     at every corner (coildrive.design, not this sweep); the objective is their sum at the
@@ -246,7 +274,7 @@ def test_objective_is_the_sum_of_the_designs_element_powers(example):
     assert rec.freewheel_power_w == pytest.approx(d.hold.freewheel_power_w, rel=RTOL)
     for name, w in d.hold.freewheel_elements_w.items():  # each element's largest over the corners
         assert 0 < rec.worst_corner_powers_w[name] <= w * (1 + RTOL), name
-    if example == "demo-valve.toml":
+    if example == "reagent-valve-zener-24v.toml":
         assert rec.worst_corner_powers_w["zener"] > 4.0, "the Zener's 4.13 W counts"
     else:
         assert rec.worst_corner_powers_w["bypass"] > 0 and rec.worst_corner_powers_w["zener"] == 0
@@ -257,7 +285,7 @@ def test_recommendation_is_the_brute_force_optimum(tmp_path):
     element powers at every corner, and apply the stated rule: within 1 % of the least
     worst-case supply power, the least switching loss, then the nearest to 25 kHz."""
     board = _board_with(tmp_path, "lab-m32-zener", 'rise_time = "400 ns"\nfall_time = "300 ns"')
-    drive = load_drive(EXAMPLES / "demo-valve.toml", board)
+    drive = load_drive(EXAMPLES / "reagent-valve-zener-24v.toml", board)
     r = tune(drive, TuneOptions(min_frequency=24e3, max_frequency=34e3, levels=1))
     rows = []
     for m in range(int(np.ceil(84e6 / 34e3)), int(84e6 // 24e3) + 1):
@@ -281,31 +309,42 @@ def test_recommendation_is_the_brute_force_optimum(tmp_path):
 
 def test_switching_loss_is_the_linearised_estimate(tmp_path):
     board = _board_with(tmp_path, "lab-m32-zener", 'rise_time = "50 ns"\nfall_time = "80 ns"')
-    drive = load_drive(EXAMPLES / "demo-valve.toml", board)
+    drive = load_drive(EXAMPLES / "reagent-valve-zener-24v.toml", board)
     t_r, t_f = drive.switch.rise_time, drive.switch.fall_time
     assert (t_r, t_f) == pytest.approx((50e-9, 80e-9), rel=1e-12)
     r = tune(drive, TuneOptions(min_frequency=50e3, max_frequency=50e3, levels=1))
-    k = 0
-    grid = r.grid
-    f, duty = r.frequency[k], r.compare[k] / r.period[k]
-    res = evaluate(drive, grid.supply, grid.ambient, grid.r_factor, grid.l_factor, duty, f, 0.0)
-    ss = res.hold
-    v_block = res.loop.supply + 0.9 + 33.0  # switch voltage while freewheeling (KVL)
-    # Mohan, Undeland & Robbins ch. 2: P_s = V I f (t_on + t_off) / 2, per edge with its current
+    k = int(r.order[0])  # evaluated as the design evaluates it: at the envelope's corners
+    d = design(dataclasses.replace(drive, hold=recommended_hold(drive, r.candidate(k))))
+    f = r.frequency[k]
+    # Mohan, Undeland & Robbins ch. 2: P_s = V I f (t_on + t_off) / 2, per edge with its
+    # current; the edges' currents at each corner from the steady state by hand
+    supply = np.array([c.supply_v for c in d.corners])
+    temps = np.array([c.coil_temp_c for c in d.corners])
+    cmp = np.array([c.hold_duty for c in d.corners])
+    rf = np.array([c.resistance_ohm for c in d.corners]) / np.array(
+        [iec60028_resistance(drive.coil.resistance, drive.coil.reference_temp, t) for t in temps])
+    lf = np.array([c.inductance_h for c in d.corners]) / drive.coil.inductance
+    lp = loop(drive, supply, temps, rf, lf)
+    ss = pwm_steady_state(cmp, f, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
+    v_block = supply + 0.9 + 33.0  # switch voltage while freewheeling (KVL)
     p_sw = 0.5 * f * v_block * (ss.i_min * t_r + ss.i_max * t_f)
     assert r.figures.switching_power[k] == pytest.approx(p_sw.max(), rel=RTOL)
     assert r.switching_estimated
 
 
 # --------------------------------------------------------------------------- constraints
-def _least_ripple_meeting_the_rest(r) -> float:
-    others = np.logical_and.reduce([r.ok[k] for k in r.ok if k != "ripple"])
+def _least_ripple_meeting_the_rest(r, exact_only: bool = True) -> float:
+    """Among the settings that meet every other constraint: the exactly evaluated ones (or
+    all, as the sweep's explanation sees them when none is feasible)."""
+    exact = np.zeros(r.points, bool)
+    exact[list(r.exact_labels)] = True
+    others = np.logical_and.reduce([r.ok[k] for k in r.ok if k != "ripple"]) & (exact | (not exact_only))
     assert np.any(others), "precondition: settings that meet every other constraint"
     return float(r.figures.ripple[others].min())
 
 
 def test_too_tight_ripple_limit_is_infeasible_and_named(demo_result):
-    least = _least_ripple_meeting_the_rest(demo_result)
+    least = _least_ripple_meeting_the_rest(demo_result, exact_only=False)
     r = tune(_demo(), dataclasses.replace(demo_result.options, max_ripple=0.5 * least))
     assert r.recommendation is None and r.order.size == 0
     assert "ripple" in r.explanation and "--max-ripple" in r.explanation
@@ -345,7 +384,7 @@ def test_margin_raises_the_target(demo_result):
 
 
 def test_fixed_prescaler_list_board():
-    drive = load_drive(EXAMPLES / "demo-valve.toml", "tiny-8bit-diode")
+    drive = load_drive(EXAMPLES / "reagent-valve-zener-24v.toml", "tiny-8bit-diode")
     r = tune(drive, TuneOptions(levels=2, min_duty_steps=32))
     assert r.points > 0
     assert set(np.unique(r.prescaler)) <= {1, 8, 64, 256, 1024}
@@ -371,7 +410,7 @@ def test_recommended_design_agrees(demo_result):
 
 def test_board_max_pwm_frequency_sets_the_upper_end(tmp_path):
     board = _board_with(tmp_path, "lab-m32-zener", 'max_pwm_frequency = "30 kHz"', "[timer]")
-    drive = load_drive(EXAMPLES / "demo-valve.toml", board)
+    drive = load_drive(EXAMPLES / "reagent-valve-zener-24v.toml", board)
     r = tune(drive, TuneOptions(levels=1))
     assert r.max_frequency == 30e3 and r.max_frequency_source == "board timer.max_pwm_frequency"
     assert r.frequency.max() <= 30e3 + 1e-9

@@ -15,7 +15,7 @@ import pytest
 
 from conftest import EXAMPLES, json_error, require_tool, run_cli
 
-DEMO = EXAMPLES / "demo-valve.toml"
+DEMO = EXAMPLES / "reagent-valve-zener-24v.toml"  # a Zener hold: what the objective must count
 NARROW = ["--min-frequency", "30 kHz", "--max-frequency", "34 kHz", "--levels", "3"]
 HOLD_KEYS = ("frequency_hz", "duty", "min_mean_current_a", "max_mean_current_a", "ripple_a")
 
@@ -167,7 +167,7 @@ def test_docs_show_what_tune_prints():
     doc = (ROOT / "docs" / "tuning.md").read_text()
     m = re.search(r"recommended: ([\d.]+) Hz \(prescaler (\d+), period (\d+)\), compare (\d+)", doc)
     assert m, "the usage section shows a recommendation"
-    r = run_cli("tune", str(DEMO), "--json")
+    r = run_cli("tune", str(EXAMPLES / "demo-valve.toml"), "--json")
     rec = json.loads(r.stdout)["recommendation"]
     assert f"{rec['frequency_hz']:.0f}" == m.group(1)
     assert (rec["prescaler"], rec["period_ticks"], rec["compare_ticks"]) == tuple(map(int, m.groups()[1:]))

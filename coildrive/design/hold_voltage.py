@@ -20,6 +20,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -247,3 +248,68 @@ def _split_result(drive: Drive, timer: TimerSetting, compare: int) -> SplitDecay
         hold_path=path_name(drive, hold=True), release_path=path_name(drive, hold=False),
         bypass_resistance_ohm=fw.bypass_resistance, bypass_lead_s=lead, count_rate_hz=rate,
         lead_counts=lead_counts, lag_counts=lag_counts, on_time_counts=compare)
+
+
+@dataclass(frozen=True)
+class HoldFigures:
+    """A voltage-mode hold (level, frequency) evaluated exactly as :func:`design` evaluates
+    it -- the envelope, the declared regulation, the hottest coil -- for the offline tune.
+
+    ``compare`` is the fixed compare (with the supply table its first, largest entry);
+    currents in A, powers in W (each the largest of any corner, ``total`` the largest sum
+    at one corner, ``parts`` its split there by the names of
+    :data:`coildrive.model.losses.HoldLosses.ELEMENTS` plus ``coil``, ``sense``,
+    ``switch_conduction``, ``switch_switching``), temperature in degC.
+    """
+
+    compare: int
+    reachable: bool
+    min_mean: float
+    max_mean: float
+    ripple: float
+    coil_power: float
+    coil_temp: float
+    conduction: float
+    switching: float
+    switch: float
+    sense: float
+    freewheel: float
+    total: float
+    parts: dict
+    worst_corner: str
+    hottest_corner: str
+
+
+def hold_figures(drive: Drive, timer: TimerSetting) -> HoldFigures:
+    """The hold of ``drive`` (its ``hold.current`` and regulation) at the timer setting
+    ``timer``, with the figures the design reports (see :class:`HoldFigures`)."""
+    f = timer.frequency_hz
+    period = timer.period_ticks
+    plan = solve_hold(drive, timer)
+    env = plan.env
+    at = dict(coil_temp=env.coil_temp, factors=env.factors(), mechanics=False)
+    res_low = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor,
+                       plan.compare_low / period, f, 0.0, **at)
+    res = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor,
+                   plan.compare_high / period, f, 0.0, **at)
+    loss = _losses(drive, res, f)
+    parts = {"coil": loss.coil, "sense": loss.sense, "switch_conduction": loss.switch_conduction,
+             "switch_switching": np.broadcast_to(loss.switch_switching, loss.coil.shape),
+             **{n: np.broadcast_to(v, loss.coil.shape) for n, v in loss.elements().items()}}
+    total = sum(parts.values())
+    k = worst(total)
+    k_hot = int(np.argmax(np.where(np.isfinite(plan.hot_temp), plan.hot_temp, np.inf)))
+    k_heat = int(plan.hot_point[k_hot])
+    switch = np.broadcast_to(loss.switch, loss.coil.shape)
+    return HoldFigures(
+        compare=plan.fixed_compare, reachable=plan.reachable,
+        min_mean=float(np.min(res_low.hold.mean)), max_mean=float(np.max(res.hold.mean)),
+        ripple=float(max(np.max(res.hold.ripple), np.max(res_low.hold.ripple))),
+        coil_power=coil_power_at(drive, plan, k_heat, f, period),
+        coil_temp=float(plan.hot_temp[k_hot]),
+        conduction=float(np.max(loss.switch_conduction)),
+        switching=float(np.max(np.broadcast_to(loss.switch_switching, loss.coil.shape))),
+        switch=float(np.max(switch)), sense=float(np.max(loss.sense)),
+        freewheel=float(np.max(loss.freewheel)), total=float(total[k]),
+        parts={n: float(v[k]) for n, v in parts.items()}, worst_corner=env.label(k),
+        hottest_corner=plan.heat.label(k_heat))

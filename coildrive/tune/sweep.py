@@ -38,7 +38,8 @@ import numpy as np
 
 from ..config import Drive, Hold, Timer
 from ..design.corners import CornerGrid, corner_grid
-from ..design.timer import MIN_PERIOD_TICKS, solve_timer
+from ..design.hold_voltage import hold_figures
+from ..design.timer import MIN_PERIOD_TICKS, TimerSetting, solve_timer
 from ..errors import InputError
 from ..jsondoc import json_ready
 from ..model.circuit import COPPER_ALPHA, loop
@@ -68,6 +69,9 @@ CHUNK = 12_288
 TEMP_TOL = 1e-5
 
 CONSTRAINTS = ("hold", "duty_range", "ripple", "duty_steps", "coil_temp")
+#: The best settings of the fast sweep that are evaluated again exactly as the design
+#: evaluates them (at least ``--top``), and lead the ranking.
+EXACT_SETTINGS = 24
 
 
 @dataclass(frozen=True)
@@ -509,6 +513,7 @@ class TuneResult:
     seconds: float
     band: int = 0
     notes: list[str] = field(default_factory=list)
+    exact_labels: dict = field(default_factory=dict)
 
     @property
     def points(self) -> int:
@@ -542,8 +547,10 @@ class TuneResult:
             conduction_power_w=float(fg.conduction_power[k]),
             switching_power_w=float(fg.switching_power[k]), switch_power_w=float(fg.switch_power[k]),
             total_power_w=float(fg.total_power[k]), coil_temp_c=float(fg.coil_temp[k]),
-            worst_corner=self.grid.label(int(fg.worst_corner[k])),
-            hottest_corner=self.grid.label(int(fg.hottest_corner[k])),
+            worst_corner=(self.exact_labels[k][0] if k in self.exact_labels else
+                          self.grid.label(int(fg.worst_corner[k]))),
+            hottest_corner=(self.exact_labels[k][1] if k in self.exact_labels else
+                            self.grid.label(int(fg.hottest_corner[k]))),
             feasible=bool(self.feasible[k]), failed=failed,
             sense_power_w=float(fg.sense_power[k]), freewheel_power_w=float(fg.freewheel_power[k]),
             worst_corner_powers_w={name: float(w) for name, w in zip(POWER_PARTS, fg.parts[k])},
@@ -596,6 +603,8 @@ def hold_toml(drive: Drive, c: Candidate) -> str:
     ]
     if h.mode != "voltage":
         lines.append(f'mode = "{h.mode}"')
+    else:
+        lines.append(f'regulation = "{h.regulation}"')
     if h.frequency_tolerance != 0.01:
         lines.append(f"frequency_tolerance = {h.frequency_tolerance!r}"
                      + ("   # picks this exact prescaler and period" if h.frequency_tolerance == 1e-9 else ""))
@@ -670,12 +679,37 @@ def tune(drive: Drive, options: TuneOptions | None = None) -> TuneResult:
     }
     feasible = np.logical_and.reduce([ok[k] for k in CONSTRAINTS])
     order, band = rank_settings(np.flatnonzero(feasible), figs, f_s, drive.hold.frequency, options.tie_band)
+    # The best settings again, exactly as the design evaluates them (the envelope, the
+    # declared regulation, the hottest coil): they are ranked among themselves and lead.
+    exact = order[:max(options.top, EXACT_SETTINGS)]
+    labels = {}
+    for k in exact:
+        hf = hold_figures(dataclasses.replace(drive, hold=dataclasses.replace(drive.hold, current=float(lvl[k]))),
+                          TimerSetting(int(p_s[k]), int(n_s[k]), float(f_s[k]), float(f_s[k])))
+        comp[k] = hf.compare
+        for name, value in (("min_mean", hf.min_mean), ("max_mean", hf.max_mean), ("ripple", hf.ripple),
+                            ("coil_power", hf.coil_power), ("conduction_power", hf.conduction),
+                            ("switching_power", hf.switching), ("switch_power", hf.switch),
+                            ("total_power", hf.total), ("coil_temp", hf.coil_temp),
+                            ("sense_power", hf.sense), ("freewheel_power", hf.freewheel)):
+            getattr(figs, name)[k] = value
+        figs.parts[k] = [hf.parts[name] for name in POWER_PARTS]
+        labels[int(k)] = (hf.worst_corner, hf.hottest_corner)
+        ok["hold"][k] = hf.reachable and hf.min_mean >= lvl[k]
+        ok["duty_range"][k] = 0 < hf.compare < n_s[k]
+        ok["ripple"][k] = hf.ripple <= max_ripple
+        ok["coil_temp"][k] = math.isfinite(hf.coil_temp) and hf.coil_temp <= drive.thermal.max_coil_temp
+    feasible = np.logical_and.reduce([ok[k] for k in CONSTRAINTS])
+    lead, band = rank_settings(exact[feasible[exact]], figs, f_s, drive.hold.frequency, options.tie_band)
+    done = set(exact.tolist())
+    rest = np.array([k for k in order if k not in done and feasible[k]], int)
+    order = np.concatenate([lead, rest]).astype(int)
     result = TuneResult(
         drive=drive, options=options, grid=grid, min_frequency=f_lo, max_frequency=f_hi,
         max_frequency_source=f_src, minimum_current=i_min, minimum_basis=basis, target_current=target,
         max_ripple=max_ripple, frequency=f_s, prescaler=p_s, period=n_s, compare=comp, level=lvl,
         figures=figs, ok=ok, feasible=feasible, order=order, frequencies=n_f, levels=n_k,
-        recommendation=None, explanation="", seconds=0.0, band=band)
+        recommendation=None, explanation="", seconds=0.0, band=band, exact_labels=labels)
     rec = result.candidate(int(order[0]), 1) if order.size else None
     explanation = "" if rec is not None else _explain(result)
     return dataclasses.replace(result, recommendation=rec, explanation=explanation,
