@@ -124,14 +124,7 @@ def _step_bottom(drive: Drive, fw: ref.Firmware, supply: float) -> float:
 #: Failing today, before the design of issue 11: the supply tables are sized for one
 #: coil and, for others, lower the duty more than the supply rises (first point found
 #: here). Strict: a fixed example passes unexpectedly and fails, so its entry must go.
-ISSUE_11_OPEN = {
-    "demo-valve": "coil 87.8 degC, R x1.00, L x0.87: 0.22225 A at 26.93 V, 0.22173 A at 27.46 V",
-    "door-latch-24v": "coil 56.2 degC, R x1.02, L x0.95: 0.31052 A at 23.19 V, 0.31038 A at 24.48 V",
-    "locker-latch-12v": "coil 44.9 degC, R x1.02, L x0.95: 0.24595 A at 11.59 V, 0.24563 A at 12.24 V",
-    "pinch-valve-48v": "coil 69.9 degC, R x1.02, L x0.93: 0.25426 A at 46.0 V, 0.25419 A at 49.2 V",
-    "relay-12v": "coil 34.1 degC, R x1.03, L x0.91: 0.08589 A at 11.19 V, 0.08484 A at 12.46 V",
-    "wash-valve-split-24v": "coil 90.9 degC, R x1.00, L x0.87: 0.19507 A at 26.2 V, 0.19493 A at 26.6 V",
-}
+ISSUE_11_OPEN: dict = {}  # empty since the table entries keep the current monotone
 
 
 @pytest.mark.compiler

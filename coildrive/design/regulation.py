@@ -120,6 +120,7 @@ def solve_hold(drive: Drive, timer: TimerSetting) -> HoldPlan:
             worst = np.where(np.any(np.isnan(need), axis=1), 1.0,
                              np.nanmax(np.nan_to_num(need, nan=1.0), axis=1))
             new = np.array([min(period, math.ceil(d * period - 1e-9)) for d in worst], int)
+            new = _monotone(drive, tol, hot, design_v, new, period, f)
             low, _ = supply_codes(drive, heat.supply)
             heat_compare = new[table_index(codes, low)]
             temps, new_hot, where = _heat(drive, heat, heat_compare / period, f, n)
@@ -175,6 +176,32 @@ def solve_hold(drive: Drive, timer: TimerSetting) -> HoldPlan:
     return HoldPlan(drive.hold.regulation, tol, heat, env, hot, where, temps, heat_compare,
                     np.asarray(compare_low, int), np.asarray(compare_high, int), int(fixed),
                     table, reachable)
+
+
+def _monotone(drive: Drive, tol: Tolerances, hot: np.ndarray, design_v: np.ndarray,
+              compares: np.ndarray, period: int, frequency: float) -> np.ndarray:
+    """Raise table entries (a count at a time) until a higher supply never lowers the hold
+    current: at the bottom of each entry's range, every coil of the envelope (each
+    tolerance corner, cold at the lowest ambient and at its hottest) carries at least what
+    it carries at the bottom of the entry below. Without this the whole-count rounding of
+    each entry alone lets the current dip by up to a count at a step."""
+    out = compares.copy()
+    temps = np.concatenate([np.full(len(tol), float(drive.ambient.min)), _finite(drive, hot)])
+    k = np.concatenate([np.arange(len(tol)), np.arange(len(tol))])
+    t = tol.take(k)
+
+    def mean(i: int, c: int) -> np.ndarray:
+        lp = loop(drive, design_v[i] + 0.0 * temps, temps, t.r_factor, t.l_factor, **_factors(t))
+        return pwm_steady_state(c / period, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
+                                lp.inductance).mean
+    below = mean(0, int(out[0]))
+    for i in range(1, len(out)):
+        here = mean(i, int(out[i]))
+        while out[i] < period and np.any(here < below * (1.0 - 1e-12)):
+            out[i] += 1
+            here = mean(i, int(out[i]))
+        below = here
+    return out
 
 
 def table_lookup(table, supply_code) -> int:
