@@ -145,7 +145,8 @@ def test_bad_input_one_line_exit_2_nothing_written(tmp_path, old, new, fragment)
     assert "Traceback" not in r.stderr
     assert lines[0].startswith(f"coildrive: {drive}: ") or "board" in fragment, lines[0]
     assert fragment in lines[0], lines[0]
-    assert r.stdout == "", "nothing on stdout"
+    # --json: the one error document on stdout, the same line as on stderr (issue 12)
+    assert json.loads(r.stdout) == {"error": lines[0].removeprefix("coildrive: "), "exit_code": 2}
     assert not header.exists(), "no file written"
 
 
