@@ -201,7 +201,7 @@ def test_rating_fails_warns_and_passes(tmp_path, demo_drive):
 def test_bad_rating_and_split_keys_exit_2(tmp_path, extra, key):
     path = _drive_file(tmp_path, "demo-valve", extra)
     r = runner.invoke(app, ["design", str(path), "--json"])
-    assert r.exit_code == 2 and r.stdout == "", r.output
+    assert r.exit_code == 2 and json.loads(r.stdout)["exit_code"] == 2, r.output   # the error document
     lines = r.stderr.strip().splitlines()
     assert len(lines) == 1 and key in lines[0] and "Traceback" not in r.stderr, r.stderr
 
@@ -209,7 +209,8 @@ def test_bad_rating_and_split_keys_exit_2(tmp_path, extra, key):
 def test_bad_rating_exit_2_as_a_process(tmp_path):
     path = _drive_file(tmp_path, "demo-valve", '[freewheel]\nzener_power_rating = "3 V"\n')
     r = run_cli("design", str(path), "--json")
-    assert r.returncode == 2 and r.stdout == "" and "Traceback" not in r.stderr
+    assert r.returncode == 2 and "Traceback" not in r.stderr
+    assert json.loads(r.stdout) == {"error": r.stderr.strip().removeprefix("coildrive: "), "exit_code": 2}
     assert r.stderr.strip() == (f"coildrive: {path}: freewheel.zener_power_rating: '3 V' is a voltage, "
                                 "expected a power in W, e.g. \"2 W\""), r.stderr
 

@@ -122,7 +122,7 @@ def test_bad_options_one_line_exit_2(tmp_path, args, fragment):
     lines = r.stderr.strip().splitlines()
     assert len(lines) == 1 and "Traceback" not in r.stderr, r.stderr
     assert fragment in lines[0], lines[0]
-    assert r.stdout == ""
+    assert json.loads(r.stdout) == {"error": lines[0].removeprefix("coildrive: "), "exit_code": 2}
     assert not (tmp_path / "x.h").exists()
 
 
