@@ -106,7 +106,8 @@ def main() -> None:
     print(f"capture:  {len(got):,} samples, {got.lost_frames:,} lost frames, {got.crc_errors:,} CRC errors, "
           f"{got.malformed_frames:,} malformed, {len(got.events):,} events, file {size / 1e6:.1f} MB")
     print(f"lost - damaged = {got.lost_frames - damaged:+d} "
-          "(damaged frames before the host's first / after its last intact frame are not seen)")
+          "(damaged frames still in the pty when the capture opened it, flushed by pyserial, "
+          "or when the emulator closed it, are never seen by the host)")
     print(f"capture RSS: first minute {max(first) / 1024:.1f} MiB, last minute {max(last) / 1024:.1f} MiB "
           f"(growth {(max(last) - max(first)) / 1024:+.1f} MiB over {rss[-1][0] / 60:.1f} min)")
     if cpu_at_start and cpu_end:

@@ -339,6 +339,12 @@ class _FullDisk:
     def __getattr__(self, name):
         return getattr(self._real, name)
 
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self._real.close()
+
 
 def _full_disk_after(monkeypatch, room: int) -> None:
     import builtins
@@ -588,3 +594,28 @@ def test_json_of_a_failing_design_holds_no_nan(tmp_path):
     assert r.exit_code == 1, r.output
     doc = _strict_json(r.stdout)
     assert any(not c["ok"] for c in doc["checks"])
+
+
+@pytest.mark.parametrize("args, output", [
+    (["simulate", str(DEMO), "--supply", "24", "--coil-temp", "20", "--csv", "{out}"], "w.csv"),
+    (["design", str(DEMO), "--header", "{out}", "--json"], "x.h"),
+])
+def test_a_full_disk_is_one_line_and_the_old_output_stays(tmp_path, monkeypatch, args, output):
+    # issue 12: on a full disk `simulate --csv` (and `check --plot`) gave OSError tracebacks
+    import builtins
+
+    from coildrive import fileio
+
+    def opener(path, mode="r", *a, **kw):
+        handle = builtins.open(path, mode, *a, **kw)
+        return _FullDisk(handle, 100) if "w" in mode else handle
+    monkeypatch.setattr(fileio, "open", opener, raising=False)
+    out = tmp_path / output
+    out.write_bytes(b"the old output\n")
+    r = runner.invoke(app, [a.format(out=out) for a in args])
+    assert r.exit_code == 2, r.output
+    assert _one_line(r.stderr) == f"coildrive: {out}: cannot be written (No space left on device)"
+    assert out.read_bytes() == b"the old output\n"
+    assert sorted(p.name for p in tmp_path.iterdir()) == [output]
+    if "--json" in args:
+        assert _strict_json(r.stdout)["exit_code"] == 2
