@@ -40,7 +40,7 @@ BOARDS = ROOT / "boards"
 LIMIT_S = 5.0
 """Longest a single run may take (s): 'within a few seconds'."""
 SEED = int(os.environ.get("COILDRIVE_FUZZ_SEED", "12"))
-RUNS = int(os.environ.get("COILDRIVE_FUZZ_RUNS", "1200"))
+RUNS = int(os.environ.get("COILDRIVE_FUZZ_RUNS", "2000"))
 """Generated runs per test session: about a minute on 2 cores with the corpus."""
 
 #: In-range values the design stage cannot yet take in a few seconds, kept out of the
