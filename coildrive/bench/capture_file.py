@@ -185,7 +185,11 @@ class CaptureWriter:
         self._lock = threading.Lock()
         self._buffer = bytearray()
         self._file = open(self.path, "wb", buffering=0)
-        self._file.write(header)
+        try:
+            self._file.write(header)
+        except BaseException:   # a full disk: close, the caller removes the file
+            self._file.close()
+            raise
         self._records = 0
         self._closed = False
         self._stop = threading.Event()

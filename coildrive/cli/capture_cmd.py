@@ -252,7 +252,7 @@ def capture_command(
     csv_note, csv_error = _csv_after(target, csv, overwrite)
     if st.error is not None:
         status(f"coildrive: capture: {port}: {st.error} after {st.elapsed_s:.1f} s; kept "
-               f"{on_disk} in {target}{csv_note}")
+               f"{on_disk}, {st.complete_actuations} actuation(s) in {target}{csv_note}")
         _report_csv_error(csv_error)
         raise typer.Exit(1)
     why = (f"stopped by {caught[0]}" if caught else

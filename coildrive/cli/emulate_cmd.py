@@ -2,7 +2,9 @@
 
 stdout: the device path, first line, flushed at once (nothing else). stderr: one line per
 switch change (``state on`` / ``state off``) and per command
-(``command <OPCODE> <argument> -> <status>``), then ``stopped``.
+(``command <OPCODE> <argument> -> <status>``); at the end, with line damage
+(``--drop-bytes``, ``--corrupt-bytes``), ``line: N frames sent, D damaged on the line
+(B bytes dropped, C changed)``; then ``stopped``.
 """
 
 from __future__ import annotations
@@ -96,4 +98,9 @@ def emulate_command(
                 signal.signal(sig, handler)
         if emulator.unread_dropped:
             status(f"note: {emulator.unread_dropped} bytes dropped while nobody read the device")
+        st = device.stats
+        if options.drop_bytes or options.corrupt_bytes:
+            # what a host's lost-frame count is checked against (benchmarks/bench_soak.py)
+            status(f"line: {st.frames_sent} frames sent, {st.frames_damaged} damaged on the line "
+                   f"({st.bytes_dropped} bytes dropped, {st.bytes_corrupted} changed)")
     status("stopped")
