@@ -43,8 +43,10 @@ def test_design_json_has_contract_keys(demo_drive):
             assert part in node, f"{path} missing from design JSON"
             node = node[part]
         assert isinstance(node, (int, float)), path
-    # the envelope: 3 supplies x 2 ambients x 2 coil temperatures (cold, hot) x 2 R x 2 L
-    assert len(d["corners"]) == 48
+    # the envelope: supplies (min, nominal, max and, with the supply table, just below each
+    # entry's code) x 2 ambients x 2 coil temperatures (cold, hot) x 2 R x 2 L
+    supplies = 3 + len(d["duty_table"]["adc_codes"]) - 1
+    assert len(d["corners"]) == supplies * 2 * 2 * 2 * 2
     assert d["hold"]["regulation"] == "supply_table"
     for key in ["supply_v", "coil_temp_c", "resistance_ohm", "inductance_h", "pull_in_time_s",
                 "hold_mean_current_a", "hold_ripple_a", "release_time_s", "peak_switch_voltage_v",

@@ -6,6 +6,9 @@ Modules, in the order data flows through them:
 * ``timer``: the prescaler/period solver;
 * ``evaluate``: a voltage-mode setting at many points (self-heating, rise, PWM steady
   state, release);
+* ``envelope``, ``regulation``, ``peak``, ``turnoff``, ``firmware``: the operating
+  envelope (coil temperature as its own axis), the hold the firmware runs, the peak by
+  time and force, every turn-off, and what the firmware runs at a given supply;
 * ``holds``: the hold strategies behind one interface -- ``hold_voltage`` (fixed duty and
   the supply table) and ``hold_current`` (current mode);
 * ``figures``, ``checks``, ``mechanics``: what every strategy builds the same way;
