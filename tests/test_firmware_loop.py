@@ -1,0 +1,122 @@
+"""Firmware in the loop as a user runs it: `coildrive firmware-driver` -> `coildrive emulate
+--firmware` -> `coildrive capture` -> `coildrive check`, each a real subprocess over a real
+pseudo-terminal. The device runs the generated C driver and stream encoder, compiled by
+the system C compiler (gcc here), against the coil model; every byte on the pty comes
+from the C encoder.
+
+References: `check` (the design's own model at the operating point) must pass the
+nominal device; with a fault put in, the driver must send the matching FAULT event
+(docs/protocol.md) and switch off within its stated time: open load within
+DRIVER_OPEN_LOAD_TICKS ticks of ON, over-current within one PWM period of the conversion
+that sees it (with shorted turns the current runs past the over-current threshold).
+"""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+
+from coildrive.bench.capture_file import read_capture
+from coildrive.bench.messages import EventKind, FaultCode
+from coildrive.codegen.driver import open_load_ticks
+from conftest import EXAMPLES, require_tool, run_cli
+from driver_harness import example_design
+from test_bench_e2e import TIMEOUT, Emulator
+
+pytestmark = pytest.mark.slow
+
+DEMO = EXAMPLES / "demo-valve.toml"
+
+
+@pytest.fixture(scope="module")
+def firmware(tmp_path_factory):
+    require_tool("gcc")
+    out = tmp_path_factory.mktemp("fw")
+    r = run_cli("firmware-driver", str(DEMO), "--out", str(out))
+    assert r.returncode == 0, r.stderr
+    return out
+
+
+@pytest.fixture(autouse=True)
+def build_cache(tmp_path_factory, monkeypatch):
+    """Libraries are built into a cache of the test's own (the emulator inherits the env)."""
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path_factory.getbasetemp() / "cache"))
+
+
+def capture(tmp_path, firmware, name, *args, actuations="2"):
+    out = tmp_path / f"{name}.cdcap"
+    with open(tmp_path / f"{name}.emulate.log", "w") as log:
+        emu = Emulator(DEMO, "--firmware", str(firmware), "--noise", "1", "--seed", "3", *args, log=log)
+        try:
+            r = run_cli("capture", emu.path, "--drive", str(DEMO), "--out", str(out),
+                        "--actuations", actuations, timeout=TIMEOUT)
+        finally:
+            emu.stop()
+    assert r.returncode == 0, r.stderr
+    cap = read_capture(out)
+    assert cap.lost_frames == 0 and cap.crc_errors == 0, r.stderr
+    return out, cap
+
+
+def test_nominal_firmware_passes_check(tmp_path, firmware):
+    out, cap = capture(tmp_path, firmware, "nominal")
+    assert not [e for e in cap.events if e.kind == EventKind.FAULT]
+    r = run_cli("check", str(out), str(DEMO), "--json")
+    doc = json.loads(r.stdout)
+    assert r.returncode == 0, {i["name"]: (i["status"], i["detail"]) for i in doc["items"]}
+    assert {i["name"] for i in doc["items"]} >= {"pull_in_time", "peak_duration", "hold_mean", "release_time"}
+
+
+# Shorted turns at the highest supply: 20 % of the turns shorted leave R x 0.8 and
+# L x 0.64 (synth.faulty_drive); at 28 V the peak current then runs to ~1.44 A within the
+# peak, past the 1.316 A over-current threshold. At the nominal 24 V it stays below it
+# (~1.24 A): no diagnostic of the list sees those shorted turns there.
+@pytest.mark.parametrize("fault, code, supply", [("open", FaultCode.OPEN_LOAD, "24 V"),
+                                                 ("shorted-turns", FaultCode.OVER_CURRENT, "28 V")])
+def test_fault_is_reported_and_the_coil_turned_off(tmp_path, firmware, fault, code, supply):
+    d = example_design("demo-valve")
+    out, cap = capture(tmp_path, firmware, fault, "--fault", fault, "--supply", supply, actuations="1")
+    on = next(e.index for e in cap.events if e.kind == EventKind.ON)
+    faults = [e for e in cap.events if e.kind == EventKind.FAULT]
+    assert [e.value for e in faults] == [int(code)]
+    fs = d.drive.board.adc.sample_rate
+    after = (faults[0].index - on) / fs
+    if code == FaultCode.OPEN_LOAD:
+        limit = open_load_ticks(d) / d.drive.board.tick.rate + 2 / d.drive.board.tick.rate
+        assert after <= limit, f"open load reported {after * 1e3:.3g} ms after ON, limit {limit * 1e3:.3g} ms"
+    else:
+        # off within one PWM period: from the FAULT on, the samples show the current falling
+        k = int(faults[0].index - cap.index[0])
+        period = int(fs / d.timer.frequency_hz) + 1
+        after_codes = cap.code[k + period: k + period + 50].astype(int)
+        assert (after_codes[1:] <= after_codes[:-1] + 3).all(), "decaying after the switch-off"
+    r = run_cli("check", str(out), str(DEMO), "--json")
+    assert r.returncode == 1
+    row = next(i for i in json.loads(r.stdout)["items"] if i["name"] == "faults")
+    assert row["status"] == "FAIL" and code.name in row["detail"]
+
+
+def test_no_compiler_is_one_clear_line(tmp_path, firmware):
+    import os
+    import subprocess
+    import sys
+    from conftest import ROOT
+    env = {k: v for k, v in os.environ.items() if k != "CC"}
+    env.update(PATH=str(tmp_path), PYTHONPATH=str(ROOT))      # no compiler on this PATH
+    r = subprocess.run([sys.executable, "-m", "coildrive", "emulate", str(DEMO), "--firmware", str(firmware),
+                        "--duration", "1"], capture_output=True, text=True, timeout=120, env=env, cwd=ROOT)
+    assert r.returncode == 2
+    assert r.stderr.strip() == ("coildrive: --firmware: no C compiler found (set CC, or install cc, gcc or "
+                                "clang): firmware in the loop compiles the generated driver for this computer")
+    assert r.stdout == ""
+
+
+def test_armature_drive_is_refused_in_one_line(tmp_path):
+    latch = EXAMPLES / "locker-latch-12v.toml"
+    fw = tmp_path / "fw"
+    assert run_cli("firmware-driver", str(latch), "--out", str(fw)).returncode == 0
+    r = run_cli("emulate", str(latch), "--firmware", str(fw), "--duration", "1")
+    assert r.returncode == 2
+    assert r.stderr.strip() == (f"coildrive: {latch}: armature: firmware in the loop runs drives without "
+                                "[armature] for now")
