@@ -155,3 +155,35 @@ def test_armature_seat_ends_the_peak_and_no_seat_is_stuck(tmp_path):
     (tmp_path / "early").mkdir()
     run = run_host(tmp_path / "early", d, common + [("on", 0), ("dip", early - 6), ("run", late + 5)])
     assert run.events()[1] == (late + 1, FAULT, int(FaultCode.STUCK))
+
+
+def test_peak_limit_chops_between_its_codes(tmp_path):
+    d = example_design("demo-valve")
+    from coildrive.codegen.driver import DriverView
+    consts = {c.name: c.value for c in DriverView(d).constants}
+    high, low = consts["COIL_DRIVER_PEAK_LIMIT_HIGH_CODE"], consts["COIL_DRIVER_PEAK_LIMIT_LOW_CODE"]
+    assert d.adc.pull_in_code < low < high < d.adc.over_current_code
+    # the model's current heads for the over-current code: the limit must chop it first
+    run = run_host(tmp_path, d, [("supply", nominal_supply_code(d)), ("full", d.adc.over_current_code + 50),
+                                 ("on", 0), ("run", d.pull_in.peak_ticks - 5)], flags=("-DCOIL_DRIVER_PEAK_LIMIT=1",))
+    switch = [on for _, _, on in run.calls("s")]
+    assert switch.count(0) >= 3 and switch.count(1) >= 3, "chopped on and off in the peak"
+    assert not [e for e in run.events() if e[1] == FAULT], "no over-current: the limit holds it below"
+
+
+@pytest.mark.parametrize("control", ["hysteretic", "off_time"])
+def test_current_mode_hold_arms_the_threshold_and_switches(tmp_path, control):
+    d = example_design("demo-valve", ('frequency = "25 kHz"',
+                                      f'frequency = "25 kHz"\nmode = "current"\ncontrol = "{control}"'))
+    cm = d.hold.current_mode
+    run = run_host(tmp_path, d, [("supply", nominal_supply_code(d)), ("full", 2 * d.adc.pull_in_code),
+                                 ("on", 0), ("run", d.pull_in.peak_ticks + 40), ("off", 0), ("run", 3)])
+    armed = [v for _, _, v in run.calls("w")]
+    low = cm.lower_code if control == "hysteretic" else 0
+    assert armed == [low * 65536 + cm.upper_code], "armed once at the start of the hold with the design's codes"
+    assert len(run.calls("u")) >= 2, "disarmed at init and at the end of the hold"
+    t_hold = d.pull_in.peak_ticks
+    in_hold = [on for t, _, on in run.calls("s") if t > t_hold]
+    assert in_hold.count(1) >= 2 and in_hold.count(0) >= 2, "the threshold switches the coil in the hold"
+    if control == "off_time":
+        assert {v for _, _, v in run.calls("o")} == {cm.off_ticks}, "the one-shot gets HOLD_OFF_TICKS"
