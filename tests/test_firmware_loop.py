@@ -59,8 +59,12 @@ def capture(tmp_path, firmware, name, *args, actuations="2"):
     return out, cap
 
 
-def test_nominal_firmware_passes_check(tmp_path, firmware):
-    out, cap = capture(tmp_path, firmware, "nominal")
+# The nominal point, and the corners of the supply range with the coldest and the
+# hottest coil the design allows (ambient -10 degC; the 130 degC winding limit).
+@pytest.mark.parametrize("supply, coil_temp", [("24 V", "20 degC"), ("20 V", "130 degC"), ("28 V", "-10 degC"),
+                                               ("20 V", "-10 degC"), ("28 V", "130 degC")])
+def test_firmware_passes_check(tmp_path, firmware, supply, coil_temp):
+    out, cap = capture(tmp_path, firmware, "point", "--supply", supply, "--coil-temp", coil_temp)
     assert not [e for e in cap.events if e.kind == EventKind.FAULT]
     r = run_cli("check", str(out), str(DEMO), "--json")
     doc = json.loads(r.stdout)

@@ -52,7 +52,7 @@ def load_library(path: Path) -> ctypes.CDLL:
     """Load a firmware library and declare its functions' C types."""
     lib = ctypes.CDLL(str(path))
     u8, u16, u32, size = ctypes.c_uint8, ctypes.c_uint16, ctypes.c_uint32, ctypes.c_size_t
-    for name, res, args in (("fil_init", None, [ctypes.c_char_p]), ("fil_conversion", None, [u16, u16]),
+    for name, res, args in (("fil_init", None, [ctypes.c_char_p, ctypes.c_int32]), ("fil_conversion", None, [u16, u16]),
                             ("fil_tick", None, []), ("fil_command", None, [u8]),
                             ("fil_push_block", size, [ctypes.POINTER(u16), size]),
                             ("fil_poll", size, []), ("fil_flush", size, []),
@@ -102,7 +102,7 @@ class FirmwareDevice(LineOutput):
         self._rng = np.random.default_rng([o.seed, 1])
         self.stats = DeviceStats()
         self.info_id = f"coildrive firmware in the loop {drive.name}"[:64].encode()
-        self.lib.fil_init(self.info_id)
+        self.lib.fil_init(self.info_id, int(round(self.coil_temp * 1000)))
         self.period = float(o.period) if o.period is not None else max(
             0.2, math.ceil((design.pull_in.peak_time_s + o.hold_time + 0.05) * 1e3) / 1e3 * 2)
         self._t = 0.0                 # device time of the next PWM period's start
