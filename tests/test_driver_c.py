@@ -187,3 +187,20 @@ def test_current_mode_hold_arms_the_threshold_and_switches(tmp_path, control):
     assert in_hold.count(1) >= 2 and in_hold.count(0) >= 2, "the threshold switches the coil in the hold"
     if control == "off_time":
         assert {v for _, _, v in run.calls("o")} == {cm.off_ticks}, "the one-shot gets HOLD_OFF_TICKS"
+
+
+def test_supply_compensated_peak_takes_its_length_from_the_header(tmp_path):
+    """With PEAK_COMPENSATED 1 (design headers of issue 11) the peak lasts
+    prefix_peak_ticks_for_supply(code) ticks; here a stand-in header function gives a
+    short peak above a supply code and the designed one below it."""
+    d = example_design("demo-valve")
+    split = nominal_supply_code(d)
+    (tmp_path / "peak.h").write_text(
+        "#include <stdint.h>\n#define COIL_PEAK_COMPENSATED 1U\n"
+        f"static inline uint16_t coil_peak_ticks_for_supply(uint16_t code)\n"
+        f"{{ return code > {split}U ? 20U : {d.pull_in.peak_ticks}U; }}\n")
+    flags = ("-include", str(tmp_path / "peak.h"))
+    for supply, peak in ((split + 10, 20), (split - 10, d.pull_in.peak_ticks)):
+        run = run_host(tmp_path, d, [("supply", supply), ("full", 2 * d.adc.pull_in_code), ("run", 1), ("on", 0),
+                                     ("run", d.pull_in.peak_ticks + 5)], flags=flags)
+        assert run.events()[:2] == [(1, ON, 0), (1 + peak, PEAK_END, 0)], f"supply code {supply}"

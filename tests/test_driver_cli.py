@@ -51,7 +51,7 @@ def test_refuses_past_the_boards_ram(tmp_path):
     board = _board(tmp_path, "16 MHz", 'ram = "64 B"\n')
     r = run_cli("firmware-driver", str(RELAY), "--out", str(tmp_path / "c"), "--board", board)
     assert r.returncode == 2
-    assert "ram: the driver needs 86 B of the board's 64 B ram (134.4 %, 8-bit AVR)" in r.stderr
+    assert "ram: the driver needs 88 B of the board's 64 B ram (137.5 %, 8-bit AVR)" in r.stderr
 
 
 def test_bad_prefix_is_one_line(tmp_path):

@@ -1,7 +1,8 @@
 """``coildrive emulate``: a virtual bench device on a pseudo-terminal.
 
 stdout: the device path, first line, flushed at once (nothing else). stderr: one line per
-switch change (``state on`` / ``state off``) and per command
+switch change (``state on`` / ``state off``; with ``--firmware``, each state of the C
+driver: ``state peak``, ``state hold``, ``state fault (fault 1)``, ...) and per command
 (``command <OPCODE> <argument> -> <status>``), then ``stopped``.
 """
 

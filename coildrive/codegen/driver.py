@@ -171,13 +171,13 @@ def render_driver(design: Design, prefix: str = "coil") -> dict[str, str]:
 #: slow case: a 32-bit core runs the same C in fewer cycles (common practice), so the
 #: shares printed are an upper bound there. The test measures again and fails if a
 #: figure exceeds its bound or falls 10 % below it.
-HANDLER_CYCLES = {"adc_isr": 320, "pwm_isr": 11, "tick": 520}
+HANDLER_CYCLES = {"adc_isr": 320, "pwm_isr": 11, "tick": 525}
 #: The driver's static state (bytes): the largest .bss over those shapes, from
 #: avr-gcc 5.4 (ATmega328P) and arm-none-eabi-gcc 12.2 (Cortex-M0+ and M4 alike).
-_STATE_BYTES = {"avr": 38, "arm": 43}
+_STATE_BYTES = {"avr": 40, "arm": 45}
 #: Code bytes at -Os: the largest .text over those shapes, rounded up to 50 bytes
 #: (Cortex-M0+, larger than the M4 build).
-_CODE_BYTES = {"avr": 1550, "arm": 1150}
+_CODE_BYTES = {"avr": 1550, "arm": 1200}
 WARN_SHARE = 0.5
 
 
