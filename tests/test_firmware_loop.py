@@ -124,3 +124,37 @@ def test_armature_drive_is_refused_in_one_line(tmp_path):
     assert r.returncode == 2
     assert r.stderr.strip() == (f"coildrive: {latch}: armature: firmware in the loop runs drives without "
                                 "[armature] for now")
+
+
+def test_host_commands_are_served_through_the_c_encoder(tmp_path, firmware, monkeypatch):
+    """START / STOP / QUERY_INFO / SET_HOLD_DUTY in process: the replies and the events are
+    the C encoder's frames, read back by the host decoder."""
+    from coildrive.bench import FrameDecoder
+    from coildrive.bench.device import DeviceOptions
+    from coildrive.bench.firmware_device import FirmwareDevice
+    from coildrive.bench.messages import Command, Event, Info, Opcode, Reply, ReplyStatus
+    from coildrive.bench.protocol import FrameEncoder
+    from coildrive.codegen.host_build import build_firmware
+
+    d = example_design("demo-valve")
+    dev = FirmwareDevice(d, build_firmware(firmware, d, cache=tmp_path / "cache"),
+                         DeviceOptions(first_actuation=10.0))
+    enc, dec = FrameEncoder(), FrameDecoder()
+    msgs = dec.feed(dev.read(0.01))
+    for op, arg in ((Opcode.QUERY_INFO, 0), (Opcode.SET_HOLD_DUTY, 30000), (Opcode.START, 20000)):
+        dev.receive(enc.encode(Command(op, arg)), 0.02)
+    t = 0.02
+    while t < 3.0:
+        t += 0.01
+        msgs += dec.feed(dev.read(t))
+    replies = [(m.opcode, m.status, m.value) for m in msgs if isinstance(m, Reply)]
+    duty = round(d.timer.compare_ticks / d.timer.period_ticks * 0xFFFF)
+    assert replies == [(Opcode.QUERY_INFO, ReplyStatus.OK, 0), (Opcode.SET_HOLD_DUTY, ReplyStatus.OUT_OF_RANGE, duty),
+                       (Opcode.START, ReplyStatus.OK, 20000)]
+    assert sum(isinstance(m, Info) for m in msgs) == 2, "at start and on QUERY_INFO"
+    kinds = [m.kind for m in msgs if isinstance(m, Event)]
+    assert kinds[-4:] == [EventKind.TEMPERATURE, EventKind.ON, EventKind.PEAK_END, EventKind.OFF]
+    ev = {m.kind: m.index for m in msgs if isinstance(m, Event)}
+    fs = d.drive.board.adc.sample_rate
+    held = (ev[EventKind.OFF] - ev[EventKind.PEAK_END]) / fs
+    assert abs(held - 0.020) <= 2 / d.drive.board.tick.rate, f"held {held * 1e3:.3f} ms for START 20000 us"

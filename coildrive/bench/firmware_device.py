@@ -20,8 +20,10 @@ built by :func:`coildrive.codegen.host_build.build_firmware`, loaded with ctypes
   more than :data:`LINE_AHEAD` s of bytes are queued: where a board would stream faster
   than its link carries, the emulated one runs slower than real time and loses nothing.
 
-Host commands are not served (the compiled driver has its settings built in): the
-device actuates by itself. Drives with an ``[armature]`` and current-mode holds are not
+Host commands are decoded by the C encoder and answered through it: START (the main
+loop switches on, and off after the peak and the hold asked), STOP, QUERY_INFO; the SET_
+commands answer OUT_OF_RANGE with the value in force (the compiled driver has its
+settings built in). Until the first command the device actuates by itself. Drives with an ``[armature]`` and current-mode holds are not
 run in the loop yet (the armature's flight and the current comparator would have to be
 stepped with the driver).
 """
@@ -36,6 +38,7 @@ import numpy as np
 
 from ..model.circuit import loop
 from ..model.rl import decay_current, rise_current
+from .messages import Opcode, Reply, ReplyStatus
 from .device import BITS_PER_BYTE, DeviceOptions, DeviceStats, LineOutput, LogEntry
 from .synth import adc_scaling, faulty_drive, operating_point
 
@@ -57,7 +60,10 @@ def load_library(path: Path) -> ctypes.CDLL:
                             ("fil_push_block", size, [ctypes.POINTER(u16), size]),
                             ("fil_poll", size, []), ("fil_flush", size, []),
                             ("fil_take", size, [ctypes.POINTER(u8), size]), ("fil_outputs", u32, []),
-                            ("fil_state", u8, []), ("fil_fault", u8, []), ("fil_lost", u32, [])):
+                            ("fil_state", u8, []), ("fil_fault", u8, []), ("fil_lost", u32, []),
+                            ("fil_receive", ctypes.c_int, [u8]), ("fil_command_opcode", u8, []),
+                            ("fil_command_argument", u32, []),
+                            ("fil_reply", None, [u8, u32, ctypes.c_char_p])):
         fn = getattr(lib, name)
         fn.restype, fn.argtypes = res, args
     return lib
@@ -132,10 +138,53 @@ class FirmwareDevice(LineOutput):
             raise ValueError("firmware in the loop runs a voltage-mode (fixed duty or supply table) hold for now")
 
     # ------------------------------------------------------------------ emulator interface
-    def receive(self, data: bytes, now: float) -> list:
-        """Host bytes: not served (the compiled driver's settings are built in)."""
+    def receive(self, data: bytes, now: float) -> list[Reply]:
+        """Host bytes, decoded by the C encoder's command receiver; returns the replies sent."""
         self._advance(now)
-        return []
+        replies = []
+        for byte in data:
+            if self.lib.fil_receive(byte):
+                replies.append(self._command(now))
+        self._take_frames()
+        return replies
+
+    def _command(self, now: float) -> Reply:
+        """Serve one command as the port's main loop does. The compiled driver has its
+        settings built in: the SET_ commands answer OUT_OF_RANGE with the value in force."""
+        self.stats.commands += 1
+        self._auto = False
+        op, arg = int(self.lib.fil_command_opcode()), int(self.lib.fil_command_argument())
+        d = self.design
+        status, value = ReplyStatus.OK, 0
+        if op == Opcode.START:
+            limit = int(round(self.options.max_hold * 1e6))
+            if self._state != STATE_OFF or self._off_at is not None or self._cmd_pending:
+                status = ReplyStatus.BUSY
+            elif arg > limit:
+                status, value = ReplyStatus.OUT_OF_RANGE, limit
+            else:
+                self.lib.fil_command(1)
+                self._cmd_pending = True
+                self.stats.actuations += 1
+                hold = self.options.max_hold if arg == 0 else arg * 1e-6
+                self._off_at = self._t + d.pull_in.peak_time_s + hold
+                value = arg
+        elif op == Opcode.STOP:
+            self.lib.fil_command(2)
+            self._cmd_pending = True
+            self._off_at = None
+        elif op == Opcode.SET_PEAK_TIME:
+            status, value = ReplyStatus.OUT_OF_RANGE, int(round(d.pull_in.peak_time_s * 1e6))
+        elif op == Opcode.SET_HOLD_DUTY:
+            status, value = ReplyStatus.OUT_OF_RANGE, int(round(d.timer.compare_ticks / d.timer.period_ticks * 0xFFFF))
+        elif op == Opcode.SET_HOLD_FREQUENCY:
+            status, value = ReplyStatus.OUT_OF_RANGE, int(round(d.timer.frequency_hz))
+        elif op != Opcode.QUERY_INFO:
+            status = ReplyStatus.UNKNOWN_OPCODE
+        self.lib.fil_reply(int(status), value, self.info_id)
+        name = Opcode(op).name if op in set(Opcode) else str(op)
+        self._log.append(LogEntry(now, f"command {name} {arg} -> {ReplyStatus(status).name}"))
+        return Reply(0, op, int(status), value)
 
     def next_due(self) -> float | None:
         times = [self._t]
