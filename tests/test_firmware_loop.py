@@ -44,12 +44,12 @@ def build_cache(tmp_path_factory, monkeypatch):
     monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path_factory.getbasetemp() / "cache"))
 
 
-def capture(tmp_path, firmware, name, *args, actuations="2"):
+def capture(tmp_path, firmware, name, *args, actuations="2", drive=DEMO):
     out = tmp_path / f"{name}.cdcap"
     with open(tmp_path / f"{name}.emulate.log", "w") as log:
-        emu = Emulator(DEMO, "--firmware", str(firmware), "--noise", "1", "--seed", "3", *args, log=log)
+        emu = Emulator(drive, "--firmware", str(firmware), "--noise", "1", "--seed", "3", *args, log=log)
         try:
-            r = run_cli("capture", emu.path, "--drive", str(DEMO), "--out", str(out),
+            r = run_cli("capture", emu.path, "--drive", str(drive), "--out", str(out),
                         "--actuations", actuations, timeout=TIMEOUT)
         finally:
             emu.stop()
@@ -82,8 +82,8 @@ def test_fault_is_reported_and_the_coil_turned_off(tmp_path, firmware, fault, co
     d = example_design("demo-valve")
     out, cap = capture(tmp_path, firmware, fault, "--fault", fault, "--supply", supply, actuations="1")
     on = next(e.index for e in cap.events if e.kind == EventKind.ON)
-    faults = [e for e in cap.events if e.kind == EventKind.FAULT]
-    assert [e.value for e in faults] == [int(code)]
+    faults = [e for e in cap.events if e.kind == EventKind.FAULT and e.index >= on]
+    assert {e.value for e in cap.events if e.kind == EventKind.FAULT} == {int(code)}
     fs = d.drive.board.adc.sample_rate
     after = (faults[0].index - on) / fs
     if code == FaultCode.OPEN_LOAD:
@@ -116,14 +116,49 @@ def test_no_compiler_is_one_clear_line(tmp_path, firmware):
     assert r.stdout == ""
 
 
-def test_armature_drive_is_refused_in_one_line(tmp_path):
-    latch = EXAMPLES / "locker-latch-12v.toml"
+def test_current_mode_is_refused_in_one_line(tmp_path):
+    text = DEMO.read_text().replace('frequency = "25 kHz"', 'frequency = "25 kHz"\nmode = "current"\ncontrol = "hysteretic"')
+    drive = tmp_path / "cm.toml"
+    drive.write_text(text)
     fw = tmp_path / "fw"
-    assert run_cli("firmware-driver", str(latch), "--out", str(fw)).returncode == 0
-    r = run_cli("emulate", str(latch), "--firmware", str(fw), "--duration", "1")
+    assert run_cli("firmware-driver", str(drive), "--out", str(fw)).returncode == 0
+    r = run_cli("emulate", str(drive), "--firmware", str(fw), "--duration", "1")
     assert r.returncode == 2
-    assert r.stderr.strip() == (f"coildrive: {latch}: armature: firmware in the loop runs drives without "
-                                "[armature] for now")
+    assert r.stderr.strip() == (f"coildrive: {drive}: hold.mode: firmware in the loop runs a voltage-mode "
+                                "(fixed duty or supply table) hold for now")
+
+
+LATCH = EXAMPLES / "locker-latch-12v.toml"
+
+
+@pytest.fixture(scope="module")
+def latch_firmware(tmp_path_factory):
+    require_tool("gcc")
+    out = tmp_path_factory.mktemp("fw-latch")
+    assert run_cli("firmware-driver", str(LATCH), "--out", str(out)).returncode == 0
+    return out
+
+
+def test_armature_drive_passes_check_and_a_stuck_armature_is_reported(tmp_path, latch_firmware):
+    """With an [armature] the pull-in is the design's armature model (the current dip
+    included) while the driver holds the switch on; `check` must pass, seat time
+    included. Stuck (the armature never moves: no dip), the driver must report STUCK one
+    tick after COIL_SEAT_LATEST_TICKS."""
+    from coildrive.codegen.header import HeaderView
+    d = example_design("locker-latch-12v")
+    out, cap = capture(tmp_path, latch_firmware, "latch", drive=LATCH)
+    r = run_cli("check", str(out), str(LATCH), "--json")
+    doc = json.loads(r.stdout)
+    assert r.returncode == 0, {i["name"]: (i["status"], i["detail"]) for i in doc["items"]}
+    assert next(i for i in doc["items"] if i["name"] == "seated_time")["status"] == "pass"
+    out, cap = capture(tmp_path, latch_firmware, "stuck", "--fault", "stuck", actuations="1", drive=LATCH)
+    on = next(e.index for e in cap.events if e.kind == EventKind.ON)
+    faults = [e for e in cap.events if e.kind == EventKind.FAULT and e.index >= on]
+    assert {e.value for e in cap.events if e.kind == EventKind.FAULT} == {int(FaultCode.STUCK)}
+    late = HeaderView(d).value("SEAT_LATEST_TICKS")
+    after = (faults[0].index - on) / d.drive.board.adc.sample_rate
+    tick = 1 / d.drive.board.tick.rate
+    assert late * tick <= after <= (late + 2) * tick, f"STUCK {after * 1e3:.3g} ms after ON"
 
 
 def test_host_commands_are_served_through_the_c_encoder(tmp_path, firmware, monkeypatch):

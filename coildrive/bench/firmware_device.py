@@ -23,9 +23,13 @@ built by :func:`coildrive.codegen.host_build.build_firmware`, loaded with ctypes
 Host commands are decoded by the C encoder and answered through it: START (the main
 loop switches on, and off after the peak and the hold asked), STOP, QUERY_INFO; the SET_
 commands answer OUT_OF_RANGE with the value in force (the compiled driver has its
-settings built in). Until the first command the device actuates by itself. Drives with an ``[armature]`` and current-mode holds are not
-run in the loop yet (the armature's flight and the current comparator would have to be
-stepped with the driver).
+settings built in). Until the first command the device actuates by itself.
+
+With an ``[armature]`` the current while the switch is held fully on from rest is the
+design's armature model (the pull-in with its dip); from the end of that peak on, the
+seated coil's RL model (the motional EMF of the armature opening in the release is left
+out). Current-mode holds are not run in the loop yet (the comparator would have to be
+stepped with the coil).
 """
 
 from __future__ import annotations
@@ -47,6 +51,7 @@ LINE_AHEAD = 0.02
 #: Longest device time stepped in one call, s (keeps the emulator's loop responsive).
 MAX_STEP = 0.01
 STATE_OFF = 0
+STATE_PEAK = 1
 STATE_FAULT = 4
 STATE_NAMES = ("off", "peak", "hold", "release", "fault")
 
@@ -93,6 +98,8 @@ class FirmwareDevice(LineOutput):
         r_scale, l_scale = o.resistance_scale * rf, o.inductance_scale * lf
         self._loops = {path: loop(faulty, self.supply, self.coil_temp, r_scale, l_scale, path)
                        for path in ("hold", "release")}
+        self._flight = self._pull_in_flight(faulty, design, l_scale)
+        self._flight_t0: float | None = None
         self.sample_rate = float(board.adc.sample_rate)
         self.tick_rate = float(board.tick.rate)
         self.pwm_period = 1.0 / design.timer.frequency_hz
@@ -132,10 +139,21 @@ class FirmwareDevice(LineOutput):
     @staticmethod
     def check_design(design) -> None:
         """``ValueError`` for a design the loop cannot run yet (see the module docstring)."""
-        if design.drive.armature is not None:
-            raise ValueError("firmware in the loop runs drives without [armature] for now")
         if design.hold.current_mode is not None:
             raise ValueError("firmware in the loop runs a voltage-mode (fixed duty or supply table) hold for now")
+
+    def _pull_in_flight(self, faulty, design, l_scale):
+        """With an armature (not stuck): ``(time, current)`` of the pull-in with the switch
+        held on from rest, long enough for the longest peak (the armature model of the
+        design, :func:`coildrive.model.armature_sim.simulate`)."""
+        if faulty.armature is None:
+            return None
+        from ..model.armature import params_from_loop
+        from ..model.armature_sim import simulate
+        p = params_from_loop(faulty.armature, self._loops["hold"], l_scale)
+        span = (design.pull_in.peak_ticks + 2) / float(faulty.board.tick.rate) + 2.0 / design.timer.frequency_hz
+        traj = simulate(p, [(span, True, 4000)])
+        return np.asarray(traj.time, float), np.asarray(traj.current, float)
 
     # ------------------------------------------------------------------ emulator interface
     def receive(self, data: bytes, now: float) -> list[Reply]:
@@ -285,13 +303,23 @@ class FirmwareDevice(LineOutput):
         on_end = t0 + (T * min(compare, self.period_counts) / self.period_counts if enable else 0.0)
         i0 = self._i
         bypass = out >> 25 & 1 or not self._split()
+        full_on = bool(enable) and compare >= self.period_counts
+        if self._flight is not None and full_on and self._state == STATE_PEAK and self._flight_t0 is None \
+                and i0 < 1e-9:
+            self._flight_t0 = t0             # the pull-in starts from rest
+        flight = self._flight_t0
+
+        def on_current(x):
+            if flight is not None:           # the armature model while the switch stays on
+                return np.interp(np.asarray(x, float) - flight, *self._flight)
+            on = self._loops["hold"]
+            return rise_current(np.asarray(x, float) - t0, i0, on.v_on, on.r_on, on.inductance)
 
         def current(x):
             x = np.asarray(x, float)
             lp = self._loops["hold" if bypass else "release"]
-            on = self._loops["hold"]
-            i_on = rise_current(np.minimum(x, on_end) - t0, i0, on.v_on, on.r_on, on.inductance)
-            i_end = rise_current(on_end - t0, i0, on.v_on, on.r_on, on.inductance)
+            i_on = on_current(np.minimum(x, on_end))
+            i_end = on_current(on_end)
             i_off = decay_current(x - on_end, i_end, lp.r_off, lp.v_off, lp.inductance)
             i = np.where(x <= on_end, i_on, i_off)
             return np.zeros_like(i) if self.options.fault == "open" else i
@@ -319,6 +347,8 @@ class FirmwareDevice(LineOutput):
         for tt in [x for x in ticks if x >= s]:
             self._do_tick(tt)
         self._i = float(current(t0 + T))
+        if on_end < t0 + T or not full_on:
+            self._flight_t0 = None           # seated (or cut short): the RL model of the seated coil
         self._t = t0 + T
         self._take_frames()
         return T

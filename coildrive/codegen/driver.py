@@ -57,20 +57,18 @@ def open_load_ticks(design: Design) -> int:
 def dip_codes(design: Design) -> int:
     """The fall and the climb in ADC codes that mark the armature's seat in the current dip.
 
-    Rule: half the shallowest dip over the design's corners (the current where the
-    armature starts moving less the bottom of the dip, each corner's own), at least two
-    codes (one code is quantisation).
+    Rule: a quarter of the shallowest dip over the design's corners (each corner's
+    ``dip_depth_a``: the hump before the dip less its bottom), at least four codes. A
+    quarter: the fall is seen early in the dip, and the climb after the bottom within a
+    fraction of a millisecond on the example latch; four codes stay clear of an ADC's
+    noise of a code or two (common practice).
     """
-    depths = []
-    for c in design.corners:
-        a = c.armature or {}
-        start, dip = a.get("start_current_a"), a.get("dip_current_a")
-        if start is not None and dip is not None and math.isfinite(start) and math.isfinite(dip):
-            depths.append(start - dip)
+    depths = [c.armature.get("dip_depth_a") for c in design.corners if c.armature]
+    depths = [x for x in depths if x is not None and math.isfinite(x) and x > 0]
     if not depths:
-        return 2
-    return max(2, math.floor(0.5 * min(depths) * design.adc.volts_per_amp
-                             / design.drive.board.adc.reference * 2**design.drive.board.adc.bits))
+        return 4
+    board = design.drive.board
+    return max(4, math.floor(0.25 * min(depths) * design.adc.volts_per_amp / board.adc.reference * 2**board.adc.bits))
 
 
 class DriverView:

@@ -67,8 +67,9 @@ def build_firmware(folder: Path, design: Design, cache: Path | None = None) -> P
     """Compile the driver in ``folder`` (for ``design``'s board) with its host port and
     the stream encoder; return the shared library's path (reused when already built).
 
-    Until the Design states its hold's regulation, the build runs the fixed compare: that
-    is the hold ``check`` predicts (the supply table is tested on the host, see
+    Until the Design states its hold's regulation, the build runs the fixed compare, and
+    with an armature the peak is not ended at the seat: that is the actuation ``check``
+    predicts (the supply table and the seat end are tested on the host, see
     tests/test_driver_c.py).
 
     Raises
@@ -92,6 +93,8 @@ def build_firmware(folder: Path, design: Design, cache: Path | None = None) -> P
     flags = ["-std=c99", "-O2", "-shared", "-fPIC", f"-D{view.macro}_STREAM_SINGLE_CONTEXT"]
     if getattr(design.hold, "regulation", None) is None and view.regulation != "current":
         flags.append(f"-D{view.macro}_HOLD_REGULATION={view.macro}_REGULATION_FIXED")
+    if view.armature:
+        flags.append(f"-D{view.macro}_DRIVER_SEAT_END=0")      # check predicts the designed peak
     key = hashlib.sha256(repr((sorted(sources.items()), sorted(generated.items()), compiler, flags,
                                sys.platform)).encode()).hexdigest()[:20]
     out = (cache or cache_root()) / key
