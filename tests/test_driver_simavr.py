@@ -44,5 +44,5 @@ def test_cycle_bounds_are_tight():
     if len(measured) < len(SHAPES):
         pytest.skip("needs every shape's run (run the whole file)")
     for handler, bound in HANDLER_CYCLES.items():
-        worst = max(m[handler] for m in measured.values())
+        worst = max(m.get(handler, 0) for m in measured.values())   # threshold_isr: current mode only
         assert worst >= 0.9 * bound, f"{handler}: worst {worst} cycles, the bound {bound} is loose"

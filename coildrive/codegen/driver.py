@@ -169,7 +169,7 @@ def render_driver(design: Design, prefix: str = "coil") -> dict[str, str]:
 #: slow case: a 32-bit core runs the same C in fewer cycles (common practice), so the
 #: shares printed are an upper bound there. The test measures again and fails if a
 #: figure exceeds its bound or falls 10 % below it.
-HANDLER_CYCLES = {"adc_isr": 320, "pwm_isr": 11, "tick": 525}
+HANDLER_CYCLES = {"adc_isr": 320, "pwm_isr": 11, "tick": 525, "threshold_isr": 137}
 #: The driver's static state (bytes): the largest .bss over those shapes, from
 #: avr-gcc 5.4 (ATmega328P) and arm-none-eabi-gcc 12.2 (Cortex-M0+ and M4 alike).
 _STATE_BYTES = {"avr": 40, "arm": 45}
@@ -195,11 +195,18 @@ class HandlerShare:
 
 def handler_shares(design: Design) -> list[HandlerShare]:
     """The PWM/ADC handlers (both run once a PWM period) against the PWM period, and the
-    tick against the tick period, at the board's timer clock taken as the CPU clock."""
+    tick against the tick period, at the board's timer clock taken as the CPU clock; in
+    current mode also the threshold (or off-timer) handler, which runs at each switching
+    edge, against half a switching cycle at the design's highest switching frequency."""
     clock = design.drive.board.timer.clock
     pwm = HANDLER_CYCLES["adc_isr"] + HANDLER_CYCLES["pwm_isr"]
-    return [HandlerShare("pwm_isr + adc_isr", pwm, clock / design.timer.frequency_hz, "PWM period"),
-            HandlerShare("tick", HANDLER_CYCLES["tick"], clock / design.drive.board.tick.rate, "tick")]
+    shares = [HandlerShare("pwm_isr + adc_isr", pwm, clock / design.timer.frequency_hz, "PWM period"),
+              HandlerShare("tick", HANDLER_CYCLES["tick"], clock / design.drive.board.tick.rate, "tick")]
+    cm = design.hold.current_mode
+    if cm is not None and cm.max_frequency_hz > 0:
+        shares.append(HandlerShare("threshold_isr", HANDLER_CYCLES["threshold_isr"],
+                                   clock / (2.0 * cm.max_frequency_hz), "switching edge"))
+    return shares
 
 
 @dataclass(frozen=True)
@@ -235,7 +242,9 @@ def budget_notes(design: Design, prefix: str = "coil") -> list[str]:
     source = board.source or board.name
     uses = memory_use(design)
     notes = ["memory: " + "; ".join(f"{u.family} RAM {u.ram:,} B, flash {u.flash:,} B" for u in uses)
-             + f" (the {prefix.lower()}_driver.c state and -Os code, the duty table included; stack not counted)"]
+             + f" (the {prefix.lower()}_driver.c state and -Os code"
+             + (", the duty table included" if DriverView(design).regulation != "current" else "")
+             + "; stack not counted)"]
     for key in ("ram", "flash"):
         have = getattr(board, key, 0)
         worst = max(uses, key=lambda u: getattr(u, key))

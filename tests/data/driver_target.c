@@ -180,7 +180,7 @@ static void model(void)
     }
 }
 
-static uint16_t worst_adc, worst_tick, worst_pwm, overhead;
+static uint16_t worst_adc, worst_tick, worst_pwm, worst_threshold, overhead;
 
 static void report(const char *name, uint16_t cycles)
 {
@@ -238,6 +238,7 @@ int main(void)
                     current = saved;
 #if defined(COIL_HOLD_HYSTERETIC) || defined(COIL_HOLD_OFF_TIME)
                     /* the comparator / window watchdog and the off-time one-shot */
+                    t0 = NOW();
                     if (off_pending) {
                         off_pending = 0u;
                         coil_off_timer_isr_or_none();
@@ -246,6 +247,7 @@ int main(void)
                     } else if (win_armed && win_low != 0u && current < win_low) {
                         coil_threshold_isr(0u);
                     }
+                    worst_threshold = worst(worst_threshold, t0);
 #endif
                     drain();
                     model();
@@ -265,6 +267,11 @@ int main(void)
     report("adc_isr", worst_adc);
     report("pwm_isr", worst_pwm);
     report("tick", worst_tick);
+#if defined(COIL_HOLD_HYSTERETIC) || defined(COIL_HOLD_OFF_TIME)
+    report("threshold_isr", worst_threshold);   /* threshold or off-timer handler, with the hooks */
+#else
+    (void)worst_threshold;
+#endif
     put_text("end\n");
     stop();
     return 0;
