@@ -144,3 +144,63 @@ def test_flash_hook_puts_the_crc_table_in_program_memory(tmp_path):
     assert plain_address >= 0x800000 and plain[".data"] >= 512, "plain const: the table is RAM"
     assert flash_address < 0x800000, "PROGMEM: the table is in flash"
     assert plain[".data"] - flash.get(".data", 0) == 512, "PROGMEM frees the table's 512 bytes of RAM"
+
+
+# --------------------------------------------------------------------------- reference driver
+@pytest.fixture(scope="module")
+def driver_unit(tmp_path_factory) -> tuple[Path, list[str]]:
+    """drivers.c: the reference driver (with its design header) of every shape the timing
+    budget covers, each under its own prefix."""
+    from coildrive.codegen.driver import render_driver
+    from driver_harness import budget_shapes
+
+    folder = tmp_path_factory.mktemp("drivers")
+    prefixes, lines = [], []
+    for k, (_, d) in enumerate(budget_shapes()):
+        prefix = f"drv{k}"
+        for name, text in render_driver(d, prefix).items():
+            (folder / name).write_text(text)
+        lines.append(f'#include "{prefix}_driver.c"')
+        prefixes.append(prefix)
+    (folder / "drivers.c").write_text("\n".join(lines) + "\n")
+    return folder, prefixes
+
+
+def _sections(size: str, obj: Path) -> dict[str, int]:
+    """Section sizes of an object file (``size -A``)."""
+    out = subprocess.run([size, "-A", str(obj)], capture_output=True, text=True, check=True).stdout
+    return {f[0]: int(f[1]) for f in (line.split() for line in out.splitlines()) if len(f) == 3 and f[0].startswith(".")}
+
+
+@pytest.mark.parametrize("target", list(TARGETS))
+def test_reference_driver_compiles_warning_free(driver_unit, target):
+    """The driver, every regulation and option (peak limit on and off), in every dialect;
+    on the microcontrollers nm's sizes must stay within what firmware-driver prints."""
+    from coildrive.codegen.driver import _CODE_BYTES as DRIVER_CODE, _STATE_BYTES
+
+    folder, prefixes = driver_unit
+    compiler, flags, family = TARGETS[target]
+    tool = require_tool(compiler)
+    for option in ("0", "1"):
+        obj = folder / f"{target}-{option}.o"
+        limits = [f"-D{p.upper()}_DRIVER_PEAK_LIMIT={option}" for p in prefixes]
+        r = subprocess.run([tool, *STRICT, *flags, "-fno-ipa-icf", *limits, "-I", str(folder), "-c",
+                            str(folder / "drivers.c"), "-o", str(obj)], capture_output=True, text=True, timeout=300)
+        assert r.returncode == 0 and r.stderr == "", f"{target} peak limit {option}:\n{r.stderr}"
+    if family is None:
+        return
+    # A firmware has one driver: measure each alone, as firmware-driver's figures are made.
+    abi = "avr" if family == "8-bit AVR" else "arm"
+    code, state = {}, {}
+    for p in prefixes:
+        obj = folder / f"{target}-{p}.o"
+        subprocess.run([tool, *flags, "-I", str(folder), "-c", str(folder / f"{p}_driver.c"), "-o", str(obj)],
+                       check=True, timeout=120)
+        sections = _sections(require_tool(compiler.replace("gcc", "size")), obj)
+        code[p] = sections.get(".text", 0)
+        state[p] = sections.get(".bss", 0) + sections.get(".data", 0)   # padding included
+    assert max(state.values()) <= _STATE_BYTES[abi], f"state bytes {state}"
+    assert max(code.values()) <= DRIVER_CODE[abi], f"code bytes {code} above the bound printed"
+    if target in ("cortex-m0plus", "atmega328p-c99"):
+        assert max(state.values()) == _STATE_BYTES[abi]
+        assert max(code.values()) >= 0.9 * DRIVER_CODE[abi], f"code bytes {code}: the bound is loose"

@@ -38,7 +38,7 @@ from ..errors import InputError
 from ..jsondoc import json_ready
 from .analysis import Analysis, analyse
 from .capture_file import Capture
-from .messages import EventKind
+from .messages import EventKind, FaultCode
 
 PASS, FAIL, NA, INFO = "pass", "FAIL", "n/a", "info"
 
@@ -348,9 +348,29 @@ def _list(numbers: list[int]) -> str:
     return ", ".join(map(str, numbers[:8])) + (" ..." if len(numbers) > 8 else "")
 
 
+def _fault_row(capture: Capture, sample_rate: float, expected: tuple) -> CheckItem | None:
+    """The ``faults`` row: every FAULT event of the capture (code name and time); it fails
+    on a code not in ``expected``. ``None`` when the firmware reported none."""
+    faults = [e for e in capture.events if e.kind == EventKind.FAULT]
+    if not faults:
+        return None
+
+    def name(code: int) -> str:
+        try:
+            return FaultCode(code).name
+        except ValueError:
+            return f"unknown code {code}"
+
+    unexpected = [e for e in faults if e.value not in {int(c) for c in expected}]
+    listed = ", ".join(f"{name(e.value)} at {e.index / sample_rate * 1e3:.4g} ms" for e in faults)
+    return CheckItem("faults", FAIL if unexpected else INFO, float(len(faults)), 0.0, None, None, "",
+                     f"{len(faults)} reported by the firmware: {listed}"
+                     + (f"; {len(unexpected)} unexpected" if unexpected else " (all expected)"))
+
+
 def check_capture(capture: Capture, design, tolerances: Tolerances | None = None,
                   supply: float | None = None, coil_temp: float | None = None,
-                  use_events: bool = True) -> CheckReport:
+                  use_events: bool = True, expected_faults: tuple = ()) -> CheckReport:
     """Compare every actuation of ``capture`` with ``design`` (a :class:`~coildrive.design.Design`).
 
     Parameters
@@ -360,6 +380,8 @@ def check_capture(capture: Capture, design, tolerances: Tolerances | None = None
     tolerances : :class:`Tolerances` (default: ours).
     supply, coil_temp : operating point in V and degC (default: see the module docstring).
     use_events : take the phases from event records when the capture has them.
+    expected_faults : :class:`~coildrive.bench.messages.FaultCode` values a test provokes on
+        purpose; FAULT events of other codes fail the check.
     """
     tol = tolerances or Tolerances()
     drive = design.drive
@@ -410,6 +432,9 @@ def check_capture(capture: Capture, design, tolerances: Tolerances | None = None
         f"{missing} missing in actuations (gaps in the scope record)")
     items.append(CheckItem("link", FAIL if missing else PASS, float(missing), 0.0, 0.0, 0.0, "samples",
                            link_detail))
+    faults = _fault_row(capture, fs, expected_faults)
+    if faults is not None:
+        items.append(faults)
     if n:
         def res_floor(name: str) -> float:
             r = [getattr(x, name) for x in acts if getattr(x, name) is not None]

@@ -229,7 +229,33 @@ class _Item:
         return (self.order, type(m).__name__, getattr(m, "kind", None), index)
 
 
-class VirtualDevice:
+class LineOutput:
+    """What every emulated device does alike: it advances to a device time (``_advance``),
+    and hands out the bytes put on the line (``_out``) and its log (``_log``) once."""
+
+    _out: bytearray
+    _log: list
+
+    def _advance(self, now: float) -> None:
+        raise NotImplementedError
+
+    def read(self, now: float) -> bytes:
+        """The bytes the device has put on the line since the last call, up to ``now`` s."""
+        self._advance(now)
+        out = bytes(self._out)
+        self._out.clear()
+        return out
+
+    def log(self, now: float | None = None) -> list[LogEntry]:
+        """Log entries up to ``now`` (default: the device time reached), oldest first; each
+        is returned once."""
+        if now is not None:
+            self._advance(now)
+        out, self._log = self._log, []
+        return out
+
+
+class VirtualDevice(LineOutput):
     """The virtual board: bytes in, bytes out, as device time goes on.
 
     Parameters
@@ -349,21 +375,6 @@ class VirtualDevice:
             if isinstance(m, Command):
                 replies.append(self._command(m, now))
         return replies
-
-    def read(self, now: float) -> bytes:
-        """The bytes the device has put on the line since the last call, up to ``now`` s."""
-        self._advance(now)
-        out = bytes(self._out)
-        self._out.clear()
-        return out
-
-    def log(self, now: float | None = None) -> list[LogEntry]:
-        """Log entries up to ``now`` (default: the device time reached), oldest first; each
-        is returned once."""
-        if now is not None:
-            self._advance(now)
-        out, self._log = self._log, []
-        return out
 
     def next_due(self) -> float | None:
         """Device time of the next thing the device will do by itself, s (``None``: nothing)."""

@@ -39,6 +39,24 @@ class EventKind(IntEnum):
     """The device sends no samples from ``index`` for ``value`` samples: nothing happened,
     they were skipped on purpose (idle between recorded actuations), not lost. Receivers
     do not count them as missing."""
+    FAULT = 10
+    """The firmware's diagnostics found a fault and turned the coil off; ``value`` is a
+    :class:`FaultCode`."""
+
+
+class FaultCode(IntEnum):
+    """The ``value`` of a FAULT event: what the reference driver's diagnostics found."""
+
+    OPEN_LOAD = 1
+    """No current rise: the current stayed below the open-load threshold too long."""
+    OVER_CURRENT = 2
+    """The current reached the over-current threshold (a short, or shorted turns)."""
+    STUCK = 3
+    """No armature seat (current dip) inside the designed window."""
+    SUPPLY_LOW = 4
+    """The supply reading stayed below the design's lowest supply."""
+    SUPPLY_HIGH = 5
+    """The supply reading stayed above the design's highest supply."""
 
 
 class Opcode(IntEnum):

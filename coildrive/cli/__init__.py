@@ -11,7 +11,7 @@ import sys
 import typer
 
 from .. import __version__
-from . import bench_cmd, capture_cmd, design_cmd, emulate_cmd, stream_cmd, tune_cmd
+from . import bench_cmd, capture_cmd, design_cmd, driver_cmd, emulate_cmd, stream_cmd, tune_cmd
 from .common import state
 
 app = typer.Typer(
@@ -42,6 +42,7 @@ app.command("simulate")(design_cmd.simulate_command)
 app.command("boards")(design_cmd.boards_command)
 app.command("tune")(tune_cmd.tune_command)
 app.command("firmware-stream")(stream_cmd.firmware_stream)
+app.command("firmware-driver")(driver_cmd.firmware_driver)
 app.command("check")(bench_cmd.check_command)
 app.command("fit")(bench_cmd.fit_command)
 app.command("emulate")(emulate_cmd.emulate_command)

@@ -1,7 +1,8 @@
 """``coildrive emulate``: a virtual bench device on a pseudo-terminal.
 
 stdout: the device path, first line, flushed at once (nothing else). stderr: one line per
-switch change (``state on`` / ``state off``) and per command
+switch change (``state on`` / ``state off``; with ``--firmware``, each state of the C
+driver: ``state peak``, ``state hold``, ``state fault (fault 1)``, ...) and per command
 (``command <OPCODE> <argument> -> <status>``); at the end, with line damage
 (``--drop-bytes``, ``--corrupt-bytes``), ``line: N frames sent, D damaged on the line
 (B bytes dropped, C changed)``; then ``stopped``.
@@ -49,6 +50,7 @@ def emulate_command(
     seed: int = typer.Option(0, "--seed", help="Seed of the noise and the line damage."),
     duration: Optional[str] = typer.Option(None, "--duration", help='Stop after this long, e.g. "10 s" (default: until SIGINT/SIGTERM).'),
     baud: Optional[int] = typer.Option(None, "--baud", help="Line rate in baud (default: the board file's link baud)."),
+    firmware: Optional[Path] = typer.Option(None, "--firmware", help="Run the generated C driver of this folder (firmware-driver --out) in the device, compiled for this computer."),
 ) -> None:
     """Serve a virtual bench device for DRIVE on a pseudo-terminal; print its path first."""
     from ..bench.device import DeviceOptions, OptionError, VirtualDevice
@@ -77,11 +79,18 @@ def emulate_command(
         raise InputError(_OPTION.get(err.name, err.name), "", err.message) from None
     d = design(load_drive(drive, board))
     try:
-        device = VirtualDevice(d.drive, options, design=d)
+        if firmware is not None:
+            from ..bench.firmware_device import FirmwareDevice
+            from ..codegen.host_build import build_firmware
+            FirmwareDevice.check_design(d)
+            device = FirmwareDevice(d, build_firmware(firmware, d), options)
+        else:
+            device = VirtualDevice(d.drive, options, design=d)
     except ValueError as err:
         # the two designs the virtual device cannot run; anything else is not the file's
         key = ("hold.mode" if "voltage-mode" in str(err) else
-               "pull_in.current" if "peak phase" in str(err) else None)
+               "pull_in.current" if "peak phase" in str(err) else
+               "armature" if "[armature]" in str(err) else None)
         if key is None:
             raise
         raise InputError(str(drive), key, str(err)) from None

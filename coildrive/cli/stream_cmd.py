@@ -7,9 +7,8 @@ from typing import Optional
 
 import typer
 
-from ..errors import InputError
-from ..fileio import write_atomic
 from .common import status, user_errors
+from .driver_cmd import write_folder
 
 
 @user_errors
@@ -38,18 +37,6 @@ def firmware_stream(
                                   event_slots=event_slots, crc_table=crc_table, board=loaded)
     notes = budget_notes(StreamView(prefix, samples_per_frame, blocks, event_slots, crc_table, loaded),
                          loaded)
-    if out_dir.exists() and not out_dir.is_dir():
-        raise InputError(str(out_dir), "", "exists and is not a folder")
-    try:
-        out_dir.mkdir(parents=True, exist_ok=True)
-    except OSError as err:
-        raise InputError(str(out_dir), "", f"cannot make the folder: {err.strerror}") from None
-    for name, text in files.items():
-        path = out_dir / name
-        try:
-            write_atomic(path, text)
-        except OSError as err:
-            raise InputError(str(path), "", f"cannot write: {err.strerror}") from None
-        status(f"wrote {path}")
+    write_folder(out_dir, files)
     for note in notes:
         status(note)

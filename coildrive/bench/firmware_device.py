@@ -1,0 +1,378 @@
+"""The virtual bench device running the generated C driver (firmware in the loop).
+
+:class:`FirmwareDevice` has the interface :class:`~coildrive.bench.emulator.Emulator`
+serves (``receive``, ``read``, ``log``, ``next_due``, ``busy``, ``shutdown``), like
+:class:`~coildrive.bench.device.VirtualDevice`; in place of that device's built-in
+firmware behaviour it calls the compiled driver and stream encoder (a shared library
+built by :func:`coildrive.codegen.host_build.build_firmware`, loaded with ctypes):
+
+* every PWM period the driver's ADC handler gets a conversion (the current at the middle
+  of the on-time with the sense under the switch, at the middle of the period in the
+  coil path; the supply through the board's divider) and sets the switch, the compare and
+  the bypass; every scheduler tick its tick handler runs; the main loop switches it on
+  every ``period`` s and off after the peak and ``hold_time``;
+* between conversions the coil is the same RL model the design uses (closed-form rise
+  and freewheel segments of :mod:`coildrive.model.rl` with the loop of
+  :mod:`coildrive.model.circuit`; faults as :func:`coildrive.bench.synth.faulty_drive`),
+  read through the same ADC chain and noise as the built-in device;
+* every ADC sample (the board's sample rate) goes to the C encoder, whose frames are the
+  bytes on the line, paced at the line rate. The device's clock waits for the line while
+  more than :data:`LINE_AHEAD` s of bytes are queued: where a board would stream faster
+  than its link carries, the emulated one runs slower than real time and loses nothing.
+
+Host commands are decoded by the C encoder and answered through it: START (the main
+loop switches on, and off after the peak and the hold asked), STOP, QUERY_INFO; the SET_
+commands answer OUT_OF_RANGE with the value in force (the compiled driver has its
+settings built in). Until the first command the device actuates by itself.
+
+With an ``[armature]`` the current while the switch is held fully on from rest is the
+design's armature model (the pull-in with its dip); from the end of that peak on, the
+seated coil's RL model (the motional EMF of the armature opening in the release is left
+out). Current-mode holds are not run in the loop yet (the comparator would have to be
+stepped with the coil).
+"""
+
+from __future__ import annotations
+
+import ctypes
+import math
+from pathlib import Path
+
+import numpy as np
+
+from ..model.circuit import loop
+from ..model.rl import decay_current, rise_current
+from .messages import Opcode, Reply, ReplyStatus
+from .device import BITS_PER_BYTE, DeviceOptions, DeviceStats, LineOutput, LogEntry
+from .synth import adc_scaling, faulty_drive, operating_point
+
+#: Seconds of bytes that may wait for the line before the device's clock waits.
+LINE_AHEAD = 0.02
+#: Longest device time stepped in one call, s (keeps the emulator's loop responsive).
+MAX_STEP = 0.01
+STATE_OFF = 0
+STATE_PEAK = 1
+STATE_FAULT = 4
+STATE_NAMES = ("off", "peak", "hold", "release", "fault")
+
+
+def load_library(path: Path) -> ctypes.CDLL:
+    """Load a firmware library and declare its functions' C types."""
+    lib = ctypes.CDLL(str(path))
+    u8, u16, u32, size = ctypes.c_uint8, ctypes.c_uint16, ctypes.c_uint32, ctypes.c_size_t
+    for name, res, args in (("fil_init", None, [ctypes.c_char_p, ctypes.c_int32]), ("fil_conversion", None, [u16, u16]),
+                            ("fil_tick", None, []), ("fil_command", None, [u8]),
+                            ("fil_push_block", size, [ctypes.POINTER(u16), size]),
+                            ("fil_poll", size, []), ("fil_flush", size, []),
+                            ("fil_take", size, [ctypes.POINTER(u8), size]), ("fil_outputs", u32, []),
+                            ("fil_state", u8, []), ("fil_fault", u8, []), ("fil_lost", u32, []),
+                            ("fil_receive", ctypes.c_int, [u8]), ("fil_command_opcode", u8, []),
+                            ("fil_command_argument", u32, []),
+                            ("fil_reply", None, [u8, u32, ctypes.c_char_p])):
+        fn = getattr(lib, name)
+        fn.restype, fn.argtypes = res, args
+    return lib
+
+
+class FirmwareDevice(LineOutput):
+    """The virtual board with the compiled driver (see the module docstring).
+
+    Parameters
+    ----------
+    design : the Design the driver was generated from.
+    library : path of the shared library (:func:`~coildrive.codegen.host_build.build_firmware`).
+    options : :class:`~coildrive.bench.device.DeviceOptions` (supply, coil temperature,
+        hold time, period, first actuation, coil scales, fault, noise, seed, baud).
+    """
+
+    def __init__(self, design, library: Path, options: DeviceOptions | None = None):
+        self.options = o = options or DeviceOptions()
+        self.design = design
+        drive = design.drive
+        self.check_design(design)
+        self.drive = drive
+        board = drive.board
+        self.lib = load_library(library)
+        self.supply, self.coil_temp = operating_point(drive, o.supply, o.coil_temp)
+        faulty, rf, lf = faulty_drive(drive, o.fault)
+        r_scale, l_scale = o.resistance_scale * rf, o.inductance_scale * lf
+        self._loops = {path: loop(faulty, self.supply, self.coil_temp, r_scale, l_scale, path)
+                       for path in ("hold", "release")}
+        self._flight = self._pull_in_flight(faulty, design, l_scale)
+        self._flight_t0: float | None = None
+        self.sample_rate = float(board.adc.sample_rate)
+        self.tick_rate = float(board.tick.rate)
+        self.pwm_period = 1.0 / design.timer.frequency_hz
+        self.period_counts = design.timer.period_ticks
+        self.baud = int(o.baud or board.link.baud)
+        self.byte_time = BITS_PER_BYTE / self.baud
+        self.sense_in_switch = board.sense.position == "switch"
+        _, self._apc = adc_scaling(drive)
+        self._vpa = board.sense.resistance * board.sense.gain
+        self._full = 2**board.adc.bits - 1
+        self._supply_code = int(min(max(math.floor(self.supply / board.supply_sense.divider
+                                                   / board.adc.reference * 2**board.adc.bits), 0), self._full))
+        self._rng = np.random.default_rng([o.seed, 1])
+        self.stats = DeviceStats()
+        self.info_id = f"coildrive firmware in the loop {drive.name}"[:64].encode()
+        self.lib.fil_init(self.info_id, int(round(self.coil_temp * 1000)))
+        self.period = float(o.period) if o.period is not None else max(
+            0.2, math.ceil((design.pull_in.peak_time_s + o.hold_time + 0.05) * 1e3) / 1e3 * 2)
+        self._t = 0.0                 # device time of the next PWM period's start
+        self._i = 0.0                 # coil current there, A
+        self._k = 0                   # next ADC sample index
+        self._tick = 1                # next scheduler tick number (tick n at n / tick rate)
+        self._outputs = 0             # switch/compare/bypass as the driver set them
+        self._next_on = float(o.first_actuation)
+        self._off_at: float | None = None
+        self._line: list[tuple[float, bytes]] = []   # (time the last byte is out, bytes)
+        self._line_free = 0.0
+        self._out = bytearray()
+        self._log: list[LogEntry] = []
+        self._state = STATE_OFF
+        self._auto = True
+        self._cmd_pending = False
+        #: s before an actuation at which a fault is cleared: the release lockout, and a tick
+        self._clear_lead = (design.release.lockout_ticks + 2) / self.tick_rate
+        self._take_frames()
+
+    @staticmethod
+    def check_design(design) -> None:
+        """``ValueError`` for a design the loop cannot run yet (see the module docstring)."""
+        if design.hold.current_mode is not None:
+            raise ValueError("firmware in the loop runs a voltage-mode (fixed duty or supply table) hold for now")
+
+    def _pull_in_flight(self, faulty, design, l_scale):
+        """With an armature (not stuck): ``(time, current)`` of the pull-in with the switch
+        held on from rest, long enough for the longest peak (the armature model of the
+        design, :func:`coildrive.model.armature_sim.simulate`)."""
+        if faulty.armature is None:
+            return None
+        from ..model.armature import params_from_loop
+        from ..model.armature_sim import simulate
+        p = params_from_loop(faulty.armature, self._loops["hold"], l_scale)
+        span = (design.pull_in.peak_ticks + 2) / float(faulty.board.tick.rate) + 2.0 / design.timer.frequency_hz
+        traj = simulate(p, [(span, True, 4000)])
+        return np.asarray(traj.time, float), np.asarray(traj.current, float)
+
+    # ------------------------------------------------------------------ emulator interface
+    def receive(self, data: bytes, now: float) -> list[Reply]:
+        """Host bytes, decoded by the C encoder's command receiver; returns the replies sent."""
+        self._advance(now)
+        replies = []
+        for byte in data:
+            if self.lib.fil_receive(byte):
+                replies.append(self._command(now))
+        self._take_frames()
+        return replies
+
+    def _command(self, now: float) -> Reply:
+        """Serve one command as the port's main loop does. The compiled driver has its
+        settings built in: the SET_ commands answer OUT_OF_RANGE with the value in force."""
+        self.stats.commands += 1
+        self._auto = False
+        op, arg = int(self.lib.fil_command_opcode()), int(self.lib.fil_command_argument())
+        d = self.design
+        status, value = ReplyStatus.OK, 0
+        if op == Opcode.START:
+            limit = int(round(self.options.max_hold * 1e6))
+            if self._state != STATE_OFF or self._off_at is not None or self._cmd_pending:
+                status = ReplyStatus.BUSY
+            elif arg > limit:
+                status, value = ReplyStatus.OUT_OF_RANGE, limit
+            else:
+                self.lib.fil_command(1)
+                self._cmd_pending = True
+                self.stats.actuations += 1
+                hold = self.options.max_hold if arg == 0 else arg * 1e-6
+                self._off_at = self._t + d.pull_in.peak_time_s + hold
+                value = arg
+        elif op == Opcode.STOP:
+            self.lib.fil_command(2)
+            self._cmd_pending = True
+            self._off_at = None
+        elif op == Opcode.SET_PEAK_TIME:
+            status, value = ReplyStatus.OUT_OF_RANGE, int(round(d.pull_in.peak_time_s * 1e6))
+        elif op == Opcode.SET_HOLD_DUTY:
+            status, value = ReplyStatus.OUT_OF_RANGE, int(round(d.timer.compare_ticks / d.timer.period_ticks * 0xFFFF))
+        elif op == Opcode.SET_HOLD_FREQUENCY:
+            status, value = ReplyStatus.OUT_OF_RANGE, int(round(d.timer.frequency_hz))
+        elif op != Opcode.QUERY_INFO:
+            status = ReplyStatus.UNKNOWN_OPCODE
+        self.lib.fil_reply(int(status), value, self.info_id)
+        name = Opcode(op).name if op in set(Opcode) else str(op)
+        self._log.append(LogEntry(now, f"command {name} {arg} -> {ReplyStatus(status).name}"))
+        return Reply(0, op, int(status), value)
+
+    def next_due(self) -> float | None:
+        times = [self._t]
+        if self._line:
+            times.append(self._line[0][0])
+        return min(times)
+
+    def busy(self, now: float | None = None) -> bool:
+        if now is not None:
+            self._advance(now)
+        return self._state != STATE_OFF or bool(self._line)
+
+    def shutdown(self, now: float) -> None:
+        """Switch the coil off (as the main loop would) and stop actuating."""
+        self._auto = False
+        self.lib.fil_command(2)
+        self._advance(now)
+
+    # ------------------------------------------------------------------ time
+    def _advance(self, now: float) -> None:
+        self._send(now)
+        budget = MAX_STEP
+        while self._t < now and self._line_free - now < LINE_AHEAD and budget > 0:
+            step = self._step()
+            budget -= step
+        self._send(now)
+
+    def _send(self, now: float) -> None:
+        while self._line and self._line[0][0] <= now:
+            self._out += self._line.pop(0)[1]
+
+    def _take_frames(self) -> None:
+        self.lib.fil_poll()
+        buf = (ctypes.c_uint8 * 65536)()
+        n = self.lib.fil_take(buf, 65536)
+        if n:
+            data = bytes(buf[:n])
+            start = max(self._line_free, self._t)
+            # whole bytes go out one by one: queue them in small pieces
+            for a in range(0, n, 64):
+                piece = data[a:a + 64]
+                start += len(piece) * self.byte_time
+                self._line.append((start, piece))
+            self._line_free = start
+            self.stats.bytes_sent += n
+
+    def _next_command(self) -> float:
+        """Device time of the main loop's next command (a clear before each actuation)."""
+        return self._next_on - self._clear_lead if self._state == STATE_FAULT else self._next_on
+
+    def _commands(self, t: float) -> None:
+        """The main loop: on at each automatic actuation, off after its hold; a fault is
+        cleared before the next actuation (a firmware that retries), so every actuation
+        shows its fault."""
+        if self._auto and self._state == STATE_FAULT and t >= self._next_on - self._clear_lead:
+            self.lib.fil_command(3)
+            self._cmd_pending = True
+            return
+        if self._auto and t >= self._next_on:
+            self._next_on += self.period
+            self.lib.fil_command(1)
+            self._cmd_pending = True
+            self.stats.actuations += 1
+            self._off_at = t + self.design.pull_in.peak_time_s + self.options.hold_time
+        if self._off_at is not None and t >= self._off_at:
+            self._off_at = None
+            self.lib.fil_command(2)
+            self._cmd_pending = True
+
+    def _codes(self, amps: np.ndarray) -> np.ndarray:
+        codes = np.asarray(amps, float) * self._vpa / self.drive.board.adc.reference * 2**self.drive.board.adc.bits
+        if self.options.noise_codes > 0:
+            codes = codes + self._rng.normal(0.0, self.options.noise_codes, codes.shape)
+        return np.clip(np.floor(codes), 0, self._full).astype(np.uint16)
+
+    def _idle(self) -> bool:
+        """Nothing moves: the driver is off or faulted with no command waiting for a tick,
+        the switch is off and the current is zero (its ticks and conversions change nothing)."""
+        return (self._state in (STATE_OFF, STATE_FAULT) and not self._cmd_pending and self._i == 0.0
+                and self._outputs >> 24 & 1 == 0)
+
+    def _step(self) -> float:
+        """One PWM period (or, idle, a run of them up to the next command); returns its s."""
+        t0, T = self._t, self.pwm_period
+        self._commands(t0)
+        if self._idle():
+            # nothing moves: skip to the next command (ticks and conversions do nothing in OFF)
+            until = min(self._next_command() if self._auto else t0 + MAX_STEP, t0 + MAX_STEP)
+            n = max(1, int(math.ceil((until - t0) / T)))
+            self._run_samples(t0, t0 + n * T, lambda x: np.zeros_like(x))
+            self._tick = max(self._tick, int(math.floor((t0 + n * T) * self.tick_rate)) + 1)
+            self._t = t0 + n * T
+            self.lib.fil_conversion(0, self._supply_code)     # the supply reading stays fresh
+            self._take_frames()
+            return n * T
+        out = self._outputs
+        enable, compare = out >> 24 & 1, out & 0xFFFFFF
+        on_end = t0 + (T * min(compare, self.period_counts) / self.period_counts if enable else 0.0)
+        i0 = self._i
+        bypass = out >> 25 & 1 or not self._split()
+        full_on = bool(enable) and compare >= self.period_counts
+        if self._flight is not None and full_on and self._state == STATE_PEAK and self._flight_t0 is None \
+                and i0 < 1e-9:
+            self._flight_t0 = t0             # the pull-in starts from rest
+        flight = self._flight_t0
+
+        def on_current(x):
+            if flight is not None:           # the armature model while the switch stays on
+                return np.interp(np.asarray(x, float) - flight, *self._flight)
+            on = self._loops["hold"]
+            return rise_current(np.asarray(x, float) - t0, i0, on.v_on, on.r_on, on.inductance)
+
+        def current(x):
+            x = np.asarray(x, float)
+            lp = self._loops["hold" if bypass else "release"]
+            i_on = on_current(np.minimum(x, on_end))
+            i_end = on_current(on_end)
+            i_off = decay_current(x - on_end, i_end, lp.r_off, lp.v_off, lp.inductance)
+            i = np.where(x <= on_end, i_on, i_off)
+            return np.zeros_like(i) if self.options.fault == "open" else i
+
+        def sensed(x):
+            i = current(x)
+            return np.where(np.asarray(x) < on_end, i, 0.0) if self.sense_in_switch else i
+
+        # conversion point: middle of the on-time under the switch, middle of the period in the coil path
+        s = t0 + (0.5 * (on_end - t0) if self.sense_in_switch and on_end > t0 else 0.5 * T)
+        ticks = []
+        while self._tick / self.tick_rate < t0 + T:
+            ticks.append(self._tick / self.tick_rate)
+            self._tick += 1
+        self._run_samples(t0, s, sensed)
+        for tt in [x for x in ticks if x < s]:
+            self._do_tick(tt)
+        code = int(self._codes(np.array([float(sensed(s))]))[0])
+        self.lib.fil_conversion(code, self._supply_code)
+        new = int(self.lib.fil_outputs())
+        if not new >> 24 & 1 and on_end > s:
+            on_end = s                      # the switch output is disabled at once
+        self._outputs = new
+        self._run_samples(s, t0 + T, sensed)
+        for tt in [x for x in ticks if x >= s]:
+            self._do_tick(tt)
+        self._i = float(current(t0 + T))
+        if on_end < t0 + T or not full_on:
+            self._flight_t0 = None           # seated (or cut short): the RL model of the seated coil
+        self._t = t0 + T
+        self._take_frames()
+        return T
+
+    def _split(self) -> bool:
+        return self.design.split_decay is not None
+
+    def _do_tick(self, t: float) -> None:
+        self.lib.fil_tick()
+        self._cmd_pending = False
+        state = int(self.lib.fil_state())
+        if state != self._state:
+            self._log.append(LogEntry(t, f"state {STATE_NAMES[state]}"
+                                      + (f" (fault {int(self.lib.fil_fault())})" if state == STATE_FAULT else "")))
+            self._state = state
+
+    def _run_samples(self, a: float, b: float, sensed) -> None:
+        """Push the ADC samples taken in [a, b) to the encoder."""
+        fs = self.sample_rate
+        k0, k1 = self._k, int(math.ceil(b * fs - 1e-9))
+        if k1 <= k0:
+            return
+        x = np.arange(k0, k1) / fs
+        codes = np.ascontiguousarray(self._codes(sensed(x)), dtype=np.uint16)
+        self.lib.fil_push_block(codes.ctypes.data_as(ctypes.POINTER(ctypes.c_uint16)), codes.size)
+        self._k = k1
+        self.stats.samples_sent += codes.size

@@ -1,0 +1,272 @@
+"""The reference peak-and-hold driver in C: a Design rendered through Jinja2 templates.
+
+:func:`render_driver` is pure (Design in, ``{filename: text}`` out): the design header
+(as ``design --header`` writes it) plus ``<prefix>_driver.h`` / ``.c`` from
+``codegen_templates/driver/``. :class:`DriverView` adds only C concerns (names, integer
+types) and the few diagnostic figures the driver needs that the Design does not state;
+each comes from Design fields by a rule written beside it (and in docs/firmware.md).
+
+:func:`budget_notes` says what the driver's handlers take of their periods at the
+board's clock, from cycle counts measured on a simulated 8-bit target.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+from ..bench.messages import EventKind, FaultCode
+from ..design.result import Design
+from ..errors import InputError
+from ..resources import data_dir
+from .header import Constant, c_uint_type, check_prefix, generate_header
+
+#: Conversions after each switch-on whose current is not tested for over-current: the
+#: first one can carry the switching edge (diode reverse recovery, the sense filter
+#: settling), later ones are taken half an on-time or more from an edge (common practice).
+OC_BLANK_SAMPLES = 1
+#: Supply conversions out of range in a row before the supply fault: a single spike is
+#: filtered, a real brown-out is seen within a few PWM periods (common practice).
+SUPPLY_SAMPLES = 4
+#: Event kinds the driver reports through its event hook.
+DRIVER_EVENTS = (EventKind.ON, EventKind.PEAK_END, EventKind.OFF, EventKind.FAULT)
+
+
+def regulation_of(design: Design) -> str:
+    """How the hold regulates: the Design's ``hold.regulation`` where it has one, else
+    ``"current"`` for a current-mode hold and ``"supply_table"`` for a voltage-mode one
+    (every design header carries the table)."""
+    declared = getattr(design.hold, "regulation", None)
+    if declared:
+        return str(declared)
+    return "current" if design.hold.current_mode is not None else "supply_table"
+
+
+def open_load_ticks(design: Design) -> int:
+    """Ticks without a sample at or above the open-load code before the open-load fault.
+
+    Rule: the worst-corner pull-in time (``pull_in.time_s``) bounds the time the current
+    needs to reach the open-load current, which is below the pull-in current (the header
+    checks it), at every corner; one tick more covers the tick's phase. In the hold every
+    sample is above the open-load code, so the same count also catches a wire that breaks
+    while held.
+    """
+    return math.ceil(design.pull_in.time_s * design.drive.board.tick.rate - 1e-9) + 1
+
+
+def dip_codes(design: Design) -> int:
+    """The fall and the climb in ADC codes that mark the armature's seat in the current dip.
+
+    Rule: a quarter of the shallowest dip over the design's corners (each corner's
+    ``dip_depth_a``: the hump before the dip less its bottom), at least four codes. A
+    quarter: the fall is seen early in the dip, and the climb after the bottom within a
+    fraction of a millisecond on the example latch; four codes stay clear of an ADC's
+    noise of a code or two (common practice).
+    """
+    depths = [c.armature.get("dip_depth_a") for c in design.corners if c.armature]
+    depths = [x for x in depths if x is not None and math.isfinite(x) and x > 0]
+    if not depths:
+        return 4
+    board = design.drive.board
+    return max(4, math.floor(0.25 * min(depths) * design.adc.volts_per_amp / board.adc.reference * 2**board.adc.bits))
+
+
+class DriverView:
+    """C-facing view of a design for the driver templates."""
+
+    def __init__(self, design: Design, prefix: str = "coil"):
+        self.design = d = design
+        check_prefix(prefix)
+        self.lower = prefix.lower()
+        self.macro = prefix.upper()
+        self.drive_header = f"{self.lower}_drive.h"
+        self.header_name = f"{self.lower}_driver.h"
+        self.source_name = f"{self.lower}_driver.c"
+        self.guard = f"{self.macro}_DRIVER_H"
+        board = d.drive.board
+        self.compare_type = c_uint_type(d.timer.period_ticks)
+        self.adc_type = c_uint_type(2**board.adc.bits - 1)
+        self.regulation = regulation_of(d)
+        if self.regulation not in ("fixed", "supply_table", "current"):
+            raise InputError(d.drive.source or d.drive.name, "hold.regulation",
+                             f"{self.regulation!r}: this driver runs the fixed, supply-table and "
+                             "current-mode holds")
+        cm = d.hold.current_mode
+        self.off_time = cm is not None and cm.control != "hysteretic"
+        self.threshold_source = ("comparator" if self.off_time else "ADC window watchdog")
+        m = self.macro
+        if cm is None:
+            self.threshold_low = self.threshold_high = ""
+        elif self.off_time:
+            self.threshold_low, self.threshold_high = "0U", f"{m}_HOLD_PEAK_CODE"
+        else:
+            self.threshold_low, self.threshold_high = f"{m}_HOLD_LOWER_CODE", f"{m}_HOLD_UPPER_CODE"
+        self.off_type = c_uint_type(max(cm.off_ticks, 0x100)) if self.off_time else "uint16_t"
+        self.split = d.split_decay is not None
+        self.armature = d.armature is not None and all(
+            math.isfinite(x) for x in (d.armature.seat_time_min_s, d.armature.seat_time_s))
+        a = d.adc
+        high = (a.pull_in_code + a.over_current_code) // 2
+        low = (a.pull_in_code + high) // 2
+        self.constants = [
+            Constant(f"{m}_DRIVER_OPEN_LOAD_TICKS", open_load_ticks(d),
+                     f"open load: no current above the open-load code for this long (worst pull-in "
+                     f"{d.pull_in.time_s * 1e3:.4g} ms, +1 tick)"),
+            Constant(f"{m}_DRIVER_OC_BLANK_SAMPLES", OC_BLANK_SAMPLES,
+                     "conversions after switch-on not tested for over-current"),
+            Constant(f"{m}_DRIVER_SUPPLY_SAMPLES", SUPPLY_SAMPLES,
+                     "supply out of range on this many conversions in a row: fault"),
+            Constant(f"{m}_DRIVER_PEAK_LIMIT_HIGH_CODE", high,
+                     "peak current limit: off at or above (midway pull-in to over-current)"),
+            Constant(f"{m}_DRIVER_PEAK_LIMIT_LOW_CODE", low, "peak current limit: back on at or below"),
+            Constant(f"{m}_DRIVER_SENSE_IN_SWITCH_LEG", int(board.sense.position == "switch"),
+                     f"sense resistor {'under the switch' if board.sense.position == 'switch' else 'in the coil path'}"),
+            Constant(f"{m}_DRIVER_THRESHOLD_COMPARATOR", int(self.off_time),
+                     "current-mode hold takes its threshold from a comparator (off-time control)"),
+            Constant(f"{m}_DRIVER_THRESHOLD_WINDOW_WATCHDOG", int(cm is not None and not self.off_time),
+                     "current-mode hold takes its thresholds from an ADC window watchdog (hysteretic)"),
+        ]
+        if self.armature:
+            self.constants.append(Constant(f"{m}_DRIVER_DIP_CODES", dip_codes(d),
+                                           "seat: fall and climb of the current dip, codes"))
+        longest = max(d.pull_in.peak_ticks, d.release.lockout_ticks, open_load_ticks(d), 255)
+        self.tick_type = c_uint_type(max(longest, 0x100))
+        self.event_kinds = [(k.name, int(k)) for k in DRIVER_EVENTS]
+        self.fault_codes = [(f.name, int(f)) for f in FaultCode]
+
+
+def render_driver(design: Design, prefix: str = "coil") -> dict[str, str]:
+    """Render the design header and the reference driver for ``design``.
+
+    Returns ``{"<prefix>_drive.h": ..., "<prefix>_driver.h": ..., "<prefix>_driver.c": ...}``.
+
+    Raises
+    ------
+    InputError
+        naming ``--prefix`` when it is not a C identifier, or the drive file when its hold
+        is one this driver does not run.
+    """
+    import jinja2  # only the code generators pay for it
+
+    view = DriverView(design, prefix)
+    env = jinja2.Environment(
+        loader=jinja2.FileSystemLoader(str(data_dir("codegen_templates") / "driver")),
+        undefined=jinja2.StrictUndefined, keep_trailing_newline=True,
+        trim_blocks=True, lstrip_blocks=True, autoescape=False,
+    )
+    return {
+        view.drive_header: generate_header(design, view.macro),
+        view.header_name: env.get_template("driver.h.j2").render(v=view, d=design),
+        view.source_name: env.get_template("driver.c.j2").render(v=view, d=design),
+    }
+
+
+# --------------------------------------------------------------------------- budget
+#: Worst cycles of each handler on an ATmega328P (avr-gcc 5.4 -Os, simavr, Timer1 at
+#: clk/1), over the drive shapes of tests/test_driver_simavr.py (every bundled example
+#: and both current-mode controls) running a script through every path (the top of the
+#: duty table, each fault, the seat), with hooks that store a byte. An 8-bit core is the
+#: slow case: a 32-bit core runs the same C in fewer cycles (common practice), so the
+#: shares printed are an upper bound there. The test measures again and fails if a
+#: figure exceeds its bound or falls 10 % below it.
+HANDLER_CYCLES = {"adc_isr": 320, "pwm_isr": 11, "tick": 525, "threshold_isr": 137}
+#: The driver's static state (bytes): the largest .bss over those shapes, from
+#: avr-gcc 5.4 (ATmega328P) and arm-none-eabi-gcc 12.2 (Cortex-M0+ and M4 alike).
+_STATE_BYTES = {"avr": 40, "arm": 45}
+#: Code bytes at -Os: the largest .text over those shapes, rounded up to 50 bytes
+#: (Cortex-M0+, larger than the M4 build).
+_CODE_BYTES = {"avr": 1550, "arm": 1200}
+WARN_SHARE = 0.5
+
+
+@dataclass(frozen=True)
+class HandlerShare:
+    """One handler's worst cycles against the cycles of its period at the board's clock."""
+
+    name: str
+    cycles: int
+    period_cycles: float
+    period: str
+
+    @property
+    def share(self) -> float:
+        return self.cycles / self.period_cycles
+
+
+def handler_shares(design: Design) -> list[HandlerShare]:
+    """The PWM/ADC handlers (both run once a PWM period) against the PWM period, and the
+    tick against the tick period, at the board's timer clock taken as the CPU clock; in
+    current mode also the threshold (or off-timer) handler, which runs at each switching
+    edge, against half a switching cycle at the design's highest switching frequency."""
+    clock = design.drive.board.timer.clock
+    pwm = HANDLER_CYCLES["adc_isr"] + HANDLER_CYCLES["pwm_isr"]
+    shares = [HandlerShare("pwm_isr + adc_isr", pwm, clock / design.timer.frequency_hz, "PWM period"),
+              HandlerShare("tick", HANDLER_CYCLES["tick"], clock / design.drive.board.tick.rate, "tick")]
+    cm = design.hold.current_mode
+    if cm is not None and cm.max_frequency_hz > 0:
+        shares.append(HandlerShare("threshold_isr", HANDLER_CYCLES["threshold_isr"],
+                                   clock / (2.0 * cm.max_frequency_hz), "switching edge"))
+    return shares
+
+
+@dataclass(frozen=True)
+class DriverMemory:
+    """RAM and flash bytes of the driver on one family of parts (the duty table is
+    ``static const`` in the design header: RAM as well as flash on an 8-bit AVR)."""
+
+    family: str
+    ram: int
+    flash: int
+
+
+def memory_use(design: Design) -> list[DriverMemory]:
+    view = DriverView(design)
+    table = 0
+    if view.regulation != "current":
+        size = {"uint8_t": 1, "uint16_t": 2, "uint32_t": 4}
+        table = len(design.duty_table.adc_codes) * (size[view.adc_type] + size[view.compare_type])
+    return [DriverMemory("8-bit AVR", _STATE_BYTES["avr"] + table, _CODE_BYTES["avr"] + table),
+            DriverMemory("Cortex-M", _STATE_BYTES["arm"], _CODE_BYTES["arm"] + table)]
+
+
+def budget_notes(design: Design, prefix: str = "coil") -> list[str]:
+    """Lines to show: memory, each handler's share of its period, and warnings.
+
+    Raises
+    ------
+    InputError
+        naming the board file when a handler needs more than its period, or the driver
+        more RAM or flash than the board's ``ram`` / ``flash``.
+    """
+    board = design.drive.board
+    source = board.source or board.name
+    uses = memory_use(design)
+    notes = ["memory: " + "; ".join(f"{u.family} RAM {u.ram:,} B, flash {u.flash:,} B" for u in uses)
+             + f" (the {prefix.lower()}_driver.c state and -Os code"
+             + (", the duty table included" if DriverView(design).regulation != "current" else "")
+             + "; stack not counted)"]
+    for key in ("ram", "flash"):
+        have = getattr(board, key, 0)
+        worst = max(uses, key=lambda u: getattr(u, key))
+        need = getattr(worst, key)
+        if not have:
+            continue
+        share = f"{need:,} B of the board's {have:,} B {key} ({100 * need / have:.1f} %, {worst.family})"
+        if need > have:
+            raise InputError(source, key, f"the driver needs {share}")
+        if need > 0.75 * have:
+            notes.append(f"warning: the driver takes {share}, above 75 %")
+    shares = handler_shares(design)
+    mhz = board.timer.clock / 1e6
+    notes.append("timing at " + f"{mhz:.4g} MHz: " + "; ".join(
+        f"{h.name} {h.cycles:,} of {h.period_cycles:,.0f} cycles a {h.period} ({100 * h.share:.1f} %)"
+        for h in shares) + " (worst cycles measured on an 8-bit AVR, an upper bound for a 32-bit core)")
+    for h in shares:
+        text = (f"{h.name} takes {100 * h.share:.1f} % of the {h.period} ({h.cycles:,} of "
+                f"{h.period_cycles:,.0f} cycles at {mhz:.4g} MHz)")
+        if h.share > 1.0:
+            raise InputError(source, "timer.clock", f"{text}: the driver cannot keep up; lower the "
+                             "PWM frequency or the tick rate, or use a faster part")
+        if h.share > WARN_SHARE:
+            notes.append(f"warning: {text}, above 50 %: little time is left for the rest of the firmware")
+    return notes

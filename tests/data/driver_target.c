@@ -1,0 +1,278 @@
+/*
+ * A scripted run of the generated reference driver (prefix "coil"), built for the host
+ * with gcc and for an ATmega328P run under simavr. Both print the same lines:
+ *   e <tick> <conversion> <kind> <value>   an event hook call
+ *   s <tick> <conversion> <on>             the switch hook
+ *   p <tick> <conversion> <counts>         the PWM compare hook
+ *   b <tick> <conversion> <closed>         the bypass hook
+ *   x <state> <fault>                      after each scenario step
+ * and the worst cycle counts of the handlers (AVR: Timer1 at clk/1; host: 0):
+ *   c <name> <cycles>
+ * The scenario (scenario.h, written by the test) is a list of {op, argument} pairs. Each
+ * tick runs CONVERSIONS_PER_TICK conversions (pwm_isr, then adc_isr) and then coil_tick().
+ * A small integer coil model gives the current: it climbs toward FULL x compare / period
+ * while the switch is on and decays by a quarter per conversion while it is off. The
+ * hooks only log into RAM, so the timed calls hold no UART waits and no model arithmetic.
+ */
+#include <stdint.h>
+#include "coil_driver.h"
+#include "scenario.h"
+
+#define OP_ON 1u
+#define OP_OFF 2u
+#define OP_CLEAR 3u
+#define OP_RUN 4u
+#define OP_SUPPLY 5u
+#define OP_MODE 6u
+#define OP_FULL 7u
+#define OP_DIP 8u
+#define MODE_COIL 0u
+#define MODE_OPEN 1u
+#define MODE_SHORT 2u
+#define LOG 16u
+#ifdef COIL_DRIVER_DIP_CODES
+#define DIP COIL_DRIVER_DIP_CODES
+#else
+#define DIP 0u
+#endif
+
+#ifdef __AVR__
+#include <avr/interrupt.h>
+#include <avr/io.h>
+#include <avr/sleep.h>
+static void uart_put(char c)
+{
+    while ((UCSR0A & (1u << UDRE0)) == 0u) {
+    }
+    UDR0 = (uint8_t)c;
+}
+static void start_clock(void)
+{
+    UBRR0 = 0u;
+    UCSR0B = (uint8_t)(1u << TXEN0);
+    TCCR1A = 0u;
+    TCCR1B = (uint8_t)(1u << CS10);
+}
+#define NOW() TCNT1
+static void stop(void)
+{
+    cli();
+    sleep_cpu();
+}
+#else
+#include <stdio.h>
+static void uart_put(char c)
+{
+    (void)putchar(c);
+}
+static void start_clock(void)
+{
+}
+#define NOW() 0u
+static void stop(void)
+{
+}
+#endif
+
+static uint8_t log_kind[LOG];
+static int32_t log_value[LOG];
+static uint8_t log_len;
+static uint16_t now_tick, now_conv;
+static uint8_t sw, bypass;
+static uint32_t compare;
+static uint16_t current, supply, full, dip_at;
+static uint8_t mode;
+
+static void log_add(uint8_t kind, int32_t value)
+{
+    if (log_len < LOG) {
+        log_kind[log_len] = kind;
+        log_value[log_len] = value;
+        log_len++;
+    }
+}
+
+void coil_port_switch(uint8_t on) { sw = on; log_add('s', on); }
+void coil_port_pwm_compare(coil_compare_t counts) { compare = counts; log_add('p', (int32_t)counts); }
+void coil_port_bypass(uint8_t closed) { bypass = closed; log_add('b', closed); }
+void coil_port_adc_start(void) { }
+coil_adc_t coil_port_read_current(void) { return (coil_adc_t)current; }
+coil_adc_t coil_port_read_supply(void) { return (coil_adc_t)supply; }
+void coil_port_event(uint8_t kind, int32_t value) { log_add('e', (int32_t)(kind * 256 + value)); }
+#if defined(COIL_HOLD_HYSTERETIC) || defined(COIL_HOLD_OFF_TIME)
+static uint8_t win_armed, off_pending;
+static uint16_t win_low, win_high;
+void coil_port_threshold(uint8_t enable, coil_adc_t low, coil_adc_t high)
+{
+    win_armed = enable;
+    win_low = low;
+    win_high = high;
+    log_add((uint8_t)(enable ? 'w' : 'u'), (int32_t)((uint32_t)low * 65536UL + (uint32_t)high));
+}
+#endif
+#ifdef COIL_HOLD_OFF_TIME
+#define coil_off_timer_isr_or_none() coil_off_timer_isr()
+void coil_port_off_timer(uint16_t counts) { off_pending = 1u; log_add('o', (int32_t)counts); }
+#else
+#define coil_off_timer_isr_or_none() ((void)0)
+#endif
+
+static void put_text(const char *text)
+{
+    while (*text != '\0') {
+        uart_put(*text++);
+    }
+}
+
+static void put_number(uint32_t value)
+{
+    char digits[10];
+    unsigned int n = 0u;
+    do {
+        digits[n++] = (char)('0' + value % 10u);
+        value = value / 10u;
+    } while (value != 0u);
+    while (n != 0u) {
+        uart_put(digits[--n]);
+    }
+}
+
+static void put_field(uint32_t value)
+{
+    uart_put(' ');
+    put_number(value);
+}
+
+static void drain(void)
+{
+    uint8_t k;
+    for (k = 0u; k < log_len; k++) {
+        uart_put((char)log_kind[k]);
+        put_field(now_tick);
+        put_field(now_conv);
+        if (log_kind[k] == 'e') {
+            put_field((uint32_t)log_value[k] >> 8);
+            put_field((uint32_t)log_value[k] & 0xFFu);
+        } else {
+            put_field((uint32_t)log_value[k]);
+        }
+        uart_put('\n');
+    }
+    log_len = 0u;
+}
+
+/* The coil: the current of the next conversion, from the switch as it is now. */
+static void model(void)
+{
+    if (mode == MODE_OPEN) {
+        current = 0u;
+    } else if (mode == MODE_SHORT) {
+        current = sw ? (uint16_t)COIL_ADC_MAX_CODE : 0u;
+    } else if (sw) {
+        uint16_t target = (uint16_t)((uint32_t)full * compare / COIL_TIMER_PERIOD_COUNTS);
+        if (target >= current) {
+            current = (uint16_t)(current + (target - current + 3u) / 4u);
+        } else {
+            current = (uint16_t)(current - (current - target) / 4u);
+        }
+    } else {
+        current = (uint16_t)(current - (current + 3u) / 4u);
+    }
+}
+
+static uint16_t worst_adc, worst_tick, worst_pwm, worst_threshold, overhead;
+
+static void report(const char *name, uint16_t cycles)
+{
+    put_text("c ");
+    put_text(name);
+    put_field(cycles);
+    uart_put('\n');
+}
+
+static uint16_t worst(uint16_t was, uint16_t t0)
+{
+    uint16_t dt = (uint16_t)(NOW() - t0 - overhead);
+    return dt > was ? dt : was;
+}
+
+int main(void)
+{
+    uint16_t step, n, t0;
+    start_clock();
+    t0 = NOW();
+    overhead = (uint16_t)(NOW() - t0);
+    supply = COIL_SUPPLY_MIN_CODE;
+    full = (uint16_t)COIL_ADC_PULL_IN_CODE;
+    coil_init();
+    drain();
+    for (step = 0u; step < sizeof(scenario) / sizeof(scenario[0]); step++) {
+        uint16_t op = scenario[step][0], arg = scenario[step][1];
+        if (op == OP_ON) {
+            coil_on();
+        } else if (op == OP_OFF) {
+            coil_off();
+        } else if (op == OP_CLEAR) {
+            coil_clear_fault();
+        } else if (op == OP_SUPPLY) {
+            supply = arg;
+        } else if (op == OP_MODE) {
+            mode = (uint8_t)arg;
+        } else if (op == OP_FULL) {
+            full = arg;
+        } else if (op == OP_DIP) {
+            dip_at = (uint16_t)(now_tick + arg);
+        } else {
+            for (n = 0u; n < arg; n++) {
+                for (now_conv = 0u; now_conv < CONVERSIONS_PER_TICK; now_conv++) {
+                    uint16_t saved = current;
+                    if (dip_at != 0u && now_tick >= dip_at && now_tick < dip_at + 2u) {
+                        current = (uint16_t)(current > 3u * DIP ? current - 3u * DIP : 0u);
+                    }
+                    t0 = NOW();
+                    coil_pwm_isr();
+                    worst_pwm = worst(worst_pwm, t0);
+                    t0 = NOW();
+                    coil_adc_isr();
+                    worst_adc = worst(worst_adc, t0);
+                    current = saved;
+#if defined(COIL_HOLD_HYSTERETIC) || defined(COIL_HOLD_OFF_TIME)
+                    /* the comparator / window watchdog and the off-time one-shot */
+                    t0 = NOW();
+                    if (off_pending) {
+                        off_pending = 0u;
+                        coil_off_timer_isr_or_none();
+                    } else if (win_armed && current >= win_high) {
+                        coil_threshold_isr(1u);
+                    } else if (win_armed && win_low != 0u && current < win_low) {
+                        coil_threshold_isr(0u);
+                    }
+                    worst_threshold = worst(worst_threshold, t0);
+#endif
+                    drain();
+                    model();
+                }
+                t0 = NOW();
+                coil_tick();
+                worst_tick = worst(worst_tick, t0);
+                drain();
+                now_tick++;
+            }
+        }
+        uart_put('x');
+        put_field(coil_state());
+        put_field(coil_fault());
+        uart_put('\n');
+    }
+    report("adc_isr", worst_adc);
+    report("pwm_isr", worst_pwm);
+    report("tick", worst_tick);
+#if defined(COIL_HOLD_HYSTERETIC) || defined(COIL_HOLD_OFF_TIME)
+    report("threshold_isr", worst_threshold);   /* threshold or off-timer handler, with the hooks */
+#else
+    (void)worst_threshold;
+#endif
+    put_text("end\n");
+    stop();
+    return 0;
+}

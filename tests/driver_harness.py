@@ -1,0 +1,141 @@
+"""Build and run tests/data/driver_target.c (the reference driver under a script) on the
+host with gcc and on a simulated ATmega328P with avr-gcc + simavr."""
+
+from __future__ import annotations
+
+import functools
+import math
+import re
+import subprocess
+from dataclasses import dataclass
+from pathlib import Path
+
+from coildrive.codegen.driver import render_driver
+from coildrive.config import load_drive
+from coildrive.design import design
+from coildrive.resources import example
+from conftest import ROOT, require_tool
+
+PROGRAM = ROOT / "tests" / "data" / "driver_target.c"
+STRICT = ["-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic", "-Wconversion", "-Wsign-conversion"]
+OPS = {"on": 1, "off": 2, "clear": 3, "run": 4, "supply": 5, "mode": 6, "full": 7, "dip": 8}
+MODES = {"coil": 0, "open": 1, "short": 2}
+_ANSI = re.compile(r"\x1b\[[0-9;]*m")
+
+
+@functools.lru_cache(maxsize=None)
+def example_design(name: str, text_edit: tuple[str, str] | None = None):
+    """The Design of a bundled example (optionally with one text replacement in its file)."""
+    path = example(name)
+    if text_edit is None:
+        return design(load_drive(path))
+    import tempfile
+    text = path.read_text().replace(*text_edit)
+    with tempfile.TemporaryDirectory() as tmp:
+        p = Path(tmp) / path.name
+        p.write_text(text)
+        return design(load_drive(p))
+
+
+def conversions_per_tick(d) -> int:
+    """ADC conversions (one per PWM period) per scheduler tick, at least one."""
+    return max(1, math.floor(d.timer.frequency_hz / d.drive.board.tick.rate))
+
+
+@dataclass
+class Run:
+    lines: list[str]
+
+    def calls(self, kind: str) -> list[tuple[int, ...]]:
+        """Every ``kind`` line's numbers (``e``: tick, conversion, event kind, value)."""
+        return [tuple(int(x) for x in line.split()[1:]) for line in self.lines if line.startswith(kind + " ")]
+
+    def events(self) -> list[tuple[int, int, int]]:
+        """``(tick, kind, value)`` of each event."""
+        return [(t, k, v) for t, _, k, v in self.calls("e")]
+
+    def states(self) -> list[tuple[int, int]]:
+        """``(state, fault)`` after each scenario step."""
+        return [tuple(int(x) for x in line.split()[1:]) for line in self.lines if line.startswith("x ")]
+
+    def cycles(self) -> dict[str, int]:
+        return {line.split()[1]: int(line.split()[2]) for line in self.lines if line.startswith("c ")}
+
+
+def write_sources(folder: Path, d, script: list[tuple[str, int]]) -> list[str]:
+    for name, text in render_driver(d, "coil").items():
+        (folder / name).write_text(text)
+    rows = ",\n".join(f"    {{{OPS[op]}u, {MODES.get(arg, arg) if op == 'mode' else arg}u}}"
+                      for op, arg in script)
+    (folder / "scenario.h").write_text(
+        f"#include <stdint.h>\n#define CONVERSIONS_PER_TICK {conversions_per_tick(d)}u\n"
+        f"static const uint16_t scenario[][2] = {{\n{rows}\n}};\n")
+    return [str(PROGRAM), str(folder / "coil_driver.c")]
+
+
+def run_host(folder: Path, d, script: list[tuple[str, int]], flags: tuple[str, ...] = ()) -> Run:
+    gcc = require_tool("gcc")
+    sources = write_sources(folder, d, script)
+    exe = folder / "host"
+    build = subprocess.run([gcc, *STRICT, "-O2", *flags, "-I", str(folder), *sources, "-o", str(exe)],
+                           capture_output=True, text=True, timeout=120)
+    assert build.returncode == 0 and build.stderr == "", build.stderr
+    out = subprocess.run([str(exe)], capture_output=True, text=True, timeout=60, check=True)
+    return Run(out.stdout.splitlines())
+
+
+def uart_lines(stderr: str) -> list[str]:
+    """simavr's UART output (on stderr, in colour, a chunk per newline shown as '.')."""
+    text = []
+    for chunk in stderr.splitlines():
+        chunk = _ANSI.sub("", chunk)
+        text.append(chunk[:-1] + "\n" if chunk.endswith(".") else chunk)
+    return "".join(text).splitlines()
+
+
+def run_avr(folder: Path, d, script: list[tuple[str, int]], flags: tuple[str, ...] = ()) -> Run:
+    avr_gcc, simavr = require_tool("avr-gcc"), require_tool("simavr")
+    sources = write_sources(folder, d, script)
+    elf = folder / "prog.elf"
+    build = subprocess.run([avr_gcc, "-mmcu=atmega328p", "-Os", *STRICT, *flags, "-I", str(folder), *sources,
+                            "-o", str(elf)], capture_output=True, text=True, timeout=120)
+    assert build.returncode == 0 and build.stderr == "", build.stderr
+    sim = subprocess.run([simavr, "-m", "atmega328p", "-f", "16000000", str(elf)],
+                         capture_output=True, text=True, timeout=300)
+    return Run([x for x in uart_lines(sim.stderr) if re.match(r"^[a-z] ", x) or x == "end"])
+
+
+def budget_script(d) -> list[tuple[str, int]]:
+    """A scenario through every handler path: an actuation at the top of the duty table
+    (its longest search), then over-current, open load, a supply fault in the hold and,
+    with an armature, a seat and a stuck armature, each cleared through the lockout."""
+    lock = d.release.lockout_ticks + 2
+    peak = d.pull_in.peak_ticks
+    from coildrive.codegen.driver import open_load_ticks
+    nominal = (d.adc.supply_min_code + d.adc.supply_max_code) // 2
+    script = [("supply", d.adc.supply_max_code), ("full", 2 * d.adc.pull_in_code), ("run", 2),
+              ("on", 0), ("run", peak + 10), ("off", 0), ("run", lock),
+              ("supply", nominal), ("mode", "short"), ("on", 0), ("run", 3), ("clear", 0), ("run", lock),
+              ("mode", "open"), ("on", 0), ("run", open_load_ticks(d) + 2), ("clear", 0), ("run", lock),
+              ("mode", "coil"), ("on", 0), ("run", peak + 5), ("supply", d.adc.supply_min_code - 1),
+              ("run", 6), ("supply", nominal), ("clear", 0), ("run", lock)]
+    if d.armature is not None:
+        from coildrive.codegen.header import HeaderView
+        hv = HeaderView(d)
+        early, late = hv.value("SEAT_EARLIEST_TICKS"), hv.value("SEAT_LATEST_TICKS")
+        script += [("full", d.adc.pull_in_code + 200), ("on", 0), ("run", 1), ("dip", early + 1),
+                   ("run", late + 3), ("off", 0), ("run", lock), ("on", 0), ("run", late + 3),
+                   ("clear", 0), ("run", lock)]
+    return script
+
+
+#: Drive shapes whose handlers the budget covers: every bundled example, and the demo
+#: with each current-mode control.
+def budget_shapes() -> list[tuple[str, object]]:
+    shapes = [(name, example_design(name)) for name in
+              ("demo-valve", "door-latch-24v", "locker-latch-12v", "pinch-valve-48v", "relay-12v",
+               "wash-valve-split-24v")]
+    for control in ("hysteretic", "off_time"):
+        shapes.append((f"demo-valve {control}", example_design(
+            "demo-valve", ('frequency = "25 kHz"', f'frequency = "25 kHz"\nmode = "current"\ncontrol = "{control}"'))))
+    return shapes

@@ -1,0 +1,80 @@
+"""``coildrive firmware-driver`` as a user runs it (real subprocesses), the FAULT event
+kind on the bench link, and ``check``'s fault row."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from coildrive.bench.capture_file import Capture, CaptureEvent
+from coildrive.bench.messages import EventKind, FaultCode
+from coildrive.codegen.stream import render_stream_encoder
+from conftest import BOARDS, EXAMPLES, run_cli
+
+RELAY = EXAMPLES / "relay-12v.toml"
+
+
+def _board(tmp_path, clock: str, extra: str = "") -> str:
+    text = (BOARDS / "tiny-8bit-diode.toml").read_text().replace('clock = "16 MHz"', f'clock = "{clock}"')
+    path = tmp_path / f"tiny-{clock.replace(' ', '')}.toml"
+    path.write_text(text.replace('name = "tiny-8bit-diode"', 'name = "tiny-8bit-diode"\n' + extra))
+    return str(path)
+
+
+def test_writes_header_and_driver_and_prints_the_budget(tmp_path):
+    out = tmp_path / "fw"
+    r = run_cli("firmware-driver", str(RELAY), "--out", str(out), "--prefix", "relay1")
+    assert r.returncode == 0, r.stderr
+    assert sorted(p.name for p in out.iterdir()) == ["relay1_drive.h", "relay1_driver.c", "relay1_driver.h"]
+    assert "#define RELAY1_PEAK_TICKS" in (out / "relay1_drive.h").read_text()
+    assert "void relay1_tick(void);" in (out / "relay1_driver.h").read_text()
+    lines = r.stderr.splitlines()
+    assert lines[3].startswith("memory: 8-bit AVR RAM ")
+    # relay-12v: 20 kHz PWM at 16 MHz = 800 cycles a period; 331 worst cycles = 41.4 %
+    assert "pwm_isr + adc_isr 331 of 800 cycles a PWM period (41.4 %)" in lines[4]
+    assert "warning" not in r.stderr
+
+
+def test_warns_above_half_and_refuses_above_the_period(tmp_path):
+    r = run_cli("firmware-driver", str(RELAY), "--out", str(tmp_path / "a"), "--board", _board(tmp_path, "8 MHz"))
+    assert r.returncode == 0, r.stderr
+    assert "warning: pwm_isr + adc_isr takes 82.8 % of the PWM period" in r.stderr
+    slow = _board(tmp_path, "4 MHz")
+    r = run_cli("firmware-driver", str(RELAY), "--out", str(tmp_path / "b"), "--board", slow)
+    assert r.returncode == 2
+    assert r.stderr.strip().splitlines() == [
+        f"coildrive: {slow}: timer.clock: pwm_isr + adc_isr takes 165.5 % of the PWM period (331 of 200 "
+        "cycles at 4 MHz): the driver cannot keep up; lower the PWM frequency or the tick rate, or use a faster part"]
+    assert not (tmp_path / "b").exists(), "nothing written"
+
+
+def test_refuses_past_the_boards_ram(tmp_path):
+    board = _board(tmp_path, "16 MHz", 'ram = "64 B"\n')
+    r = run_cli("firmware-driver", str(RELAY), "--out", str(tmp_path / "c"), "--board", board)
+    assert r.returncode == 2
+    assert "ram: the driver needs 88 B of the board's 64 B ram (137.5 %, 8-bit AVR)" in r.stderr
+
+
+def test_bad_prefix_is_one_line(tmp_path):
+    r = run_cli("firmware-driver", str(RELAY), "--out", str(tmp_path / "d"), "--prefix", "9x")
+    assert r.returncode == 2
+    assert r.stderr.strip() == "coildrive: --prefix: '9x' is not a C identifier, expected e.g. VALVE1"
+
+
+def test_fault_event_kind_reaches_the_stream_encoder():
+    assert int(EventKind.FAULT) == 10, "the next free kind after PAUSE = 9 (docs/protocol.md)"
+    header = render_stream_encoder("coil")["coil_stream.h"]
+    assert "#define COIL_EVENT_FAULT" in header and " 10u" in header.split("#define COIL_EVENT_FAULT")[1][:40]
+
+
+def _capture(events) -> Capture:
+    return Capture(index=np.arange(10, dtype=np.int64), code=np.zeros(10, np.uint16), events=tuple(events))
+
+
+def test_check_lists_faults_and_fails_on_an_unexpected_one():
+    from coildrive.bench.check import _fault_row
+    ev = [CaptureEvent(1500, int(EventKind.FAULT), int(FaultCode.OPEN_LOAD))]
+    row = _fault_row(_capture(ev), 15000.0, ())
+    assert row.status == "FAIL" and row.detail == "1 reported by the firmware: OPEN_LOAD at 100 ms; 1 unexpected"
+    row = _fault_row(_capture(ev), 15000.0, (FaultCode.OPEN_LOAD,))
+    assert row.status == "info"
+    assert _fault_row(_capture([]), 15000.0, ()) is None

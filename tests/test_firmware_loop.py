@@ -1,0 +1,195 @@
+"""Firmware in the loop as a user runs it: `coildrive firmware-driver` -> `coildrive emulate
+--firmware` -> `coildrive capture` -> `coildrive check`, each a real subprocess over a real
+pseudo-terminal. The device runs the generated C driver and stream encoder, compiled by
+the system C compiler (gcc here), against the coil model; every byte on the pty comes
+from the C encoder.
+
+References: `check` (the design's own model at the operating point) must pass the
+nominal device; with a fault put in, the driver must send the matching FAULT event
+(docs/protocol.md) and switch off within its stated time: open load within
+DRIVER_OPEN_LOAD_TICKS ticks of ON, over-current within one PWM period of the conversion
+that sees it (with shorted turns the current runs past the over-current threshold).
+"""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+
+from coildrive.bench.capture_file import read_capture
+from coildrive.bench.messages import EventKind, FaultCode
+from coildrive.codegen.driver import open_load_ticks
+from conftest import EXAMPLES, require_tool, run_cli
+from driver_harness import example_design
+from test_bench_e2e import TIMEOUT, Emulator
+
+pytestmark = pytest.mark.slow
+
+DEMO = EXAMPLES / "demo-valve.toml"
+
+
+@pytest.fixture(scope="module")
+def firmware(tmp_path_factory):
+    require_tool("gcc")
+    out = tmp_path_factory.mktemp("fw")
+    r = run_cli("firmware-driver", str(DEMO), "--out", str(out))
+    assert r.returncode == 0, r.stderr
+    return out
+
+
+@pytest.fixture(autouse=True)
+def build_cache(tmp_path_factory, monkeypatch):
+    """Libraries are built into a cache of the test's own (the emulator inherits the env)."""
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path_factory.getbasetemp() / "cache"))
+
+
+def capture(tmp_path, firmware, name, *args, actuations="2", drive=DEMO):
+    out = tmp_path / f"{name}.cdcap"
+    with open(tmp_path / f"{name}.emulate.log", "w") as log:
+        emu = Emulator(drive, "--firmware", str(firmware), "--noise", "1", "--seed", "3", *args, log=log)
+        try:
+            r = run_cli("capture", emu.path, "--drive", str(drive), "--out", str(out),
+                        "--actuations", actuations, timeout=TIMEOUT)
+        finally:
+            emu.stop()
+    assert r.returncode == 0, r.stderr
+    cap = read_capture(out)
+    assert cap.lost_frames == 0 and cap.crc_errors == 0, r.stderr
+    return out, cap
+
+
+# The nominal point, and the corners of the supply range with the coldest and the
+# hottest coil the design allows (ambient -10 degC; the 130 degC winding limit).
+@pytest.mark.parametrize("supply, coil_temp", [("24 V", "20 degC"), ("20 V", "130 degC"), ("28 V", "-10 degC"),
+                                               ("20 V", "-10 degC"), ("28 V", "130 degC")])
+def test_firmware_passes_check(tmp_path, firmware, supply, coil_temp):
+    out, cap = capture(tmp_path, firmware, "point", "--supply", supply, "--coil-temp", coil_temp)
+    assert not [e for e in cap.events if e.kind == EventKind.FAULT]
+    r = run_cli("check", str(out), str(DEMO), "--json")
+    doc = json.loads(r.stdout)
+    assert r.returncode == 0, {i["name"]: (i["status"], i["detail"]) for i in doc["items"]}
+    assert {i["name"] for i in doc["items"]} >= {"pull_in_time", "peak_duration", "hold_mean", "release_time"}
+
+
+# Shorted turns at the highest supply: 20 % of the turns shorted leave R x 0.8 and
+# L x 0.64 (synth.faulty_drive); at 28 V the peak current then runs to ~1.44 A within the
+# peak, past the 1.316 A over-current threshold. At the nominal 24 V it stays below it
+# (~1.24 A): no diagnostic of the list sees those shorted turns there.
+@pytest.mark.parametrize("fault, code, supply", [("open", FaultCode.OPEN_LOAD, "24 V"),
+                                                 ("shorted-turns", FaultCode.OVER_CURRENT, "28 V")])
+def test_fault_is_reported_and_the_coil_turned_off(tmp_path, firmware, fault, code, supply):
+    d = example_design("demo-valve")
+    out, cap = capture(tmp_path, firmware, fault, "--fault", fault, "--supply", supply, actuations="1")
+    on = next(e.index for e in cap.events if e.kind == EventKind.ON)
+    faults = [e for e in cap.events if e.kind == EventKind.FAULT and e.index >= on]
+    assert {e.value for e in cap.events if e.kind == EventKind.FAULT} == {int(code)}
+    fs = d.drive.board.adc.sample_rate
+    after = (faults[0].index - on) / fs
+    if code == FaultCode.OPEN_LOAD:
+        limit = open_load_ticks(d) / d.drive.board.tick.rate + 2 / d.drive.board.tick.rate
+        assert after <= limit, f"open load reported {after * 1e3:.3g} ms after ON, limit {limit * 1e3:.3g} ms"
+    else:
+        # off within one PWM period: from the FAULT on, the samples show the current falling
+        k = int(faults[0].index - cap.index[0])
+        period = int(fs / d.timer.frequency_hz) + 1
+        after_codes = cap.code[k + period: k + period + 50].astype(int)
+        assert (after_codes[1:] <= after_codes[:-1] + 3).all(), "decaying after the switch-off"
+    r = run_cli("check", str(out), str(DEMO), "--json")
+    assert r.returncode == 1
+    row = next(i for i in json.loads(r.stdout)["items"] if i["name"] == "faults")
+    assert row["status"] == "FAIL" and code.name in row["detail"]
+
+
+def test_no_compiler_is_one_clear_line(tmp_path, firmware):
+    import os
+    import subprocess
+    import sys
+    from conftest import ROOT
+    env = {k: v for k, v in os.environ.items() if k != "CC"}
+    env.update(PATH=str(tmp_path), PYTHONPATH=str(ROOT))      # no compiler on this PATH
+    r = subprocess.run([sys.executable, "-m", "coildrive", "emulate", str(DEMO), "--firmware", str(firmware),
+                        "--duration", "1"], capture_output=True, text=True, timeout=120, env=env, cwd=ROOT)
+    assert r.returncode == 2
+    assert r.stderr.strip() == ("coildrive: --firmware: no C compiler found (set CC, or install cc, gcc or "
+                                "clang): firmware in the loop compiles the generated driver for this computer")
+    assert r.stdout == ""
+
+
+def test_current_mode_is_refused_in_one_line(tmp_path):
+    text = DEMO.read_text().replace('frequency = "25 kHz"', 'frequency = "25 kHz"\nmode = "current"\ncontrol = "hysteretic"')
+    drive = tmp_path / "cm.toml"
+    drive.write_text(text)
+    fw = tmp_path / "fw"
+    assert run_cli("firmware-driver", str(drive), "--out", str(fw)).returncode == 0
+    r = run_cli("emulate", str(drive), "--firmware", str(fw), "--duration", "1")
+    assert r.returncode == 2
+    assert r.stderr.strip() == (f"coildrive: {drive}: hold.mode: firmware in the loop runs a voltage-mode "
+                                "(fixed duty or supply table) hold for now")
+
+
+LATCH = EXAMPLES / "locker-latch-12v.toml"
+
+
+@pytest.fixture(scope="module")
+def latch_firmware(tmp_path_factory):
+    require_tool("gcc")
+    out = tmp_path_factory.mktemp("fw-latch")
+    assert run_cli("firmware-driver", str(LATCH), "--out", str(out)).returncode == 0
+    return out
+
+
+def test_armature_drive_passes_check_and_a_stuck_armature_is_reported(tmp_path, latch_firmware):
+    """With an [armature] the pull-in is the design's armature model (the current dip
+    included) while the driver holds the switch on; `check` must pass, seat time
+    included. Stuck (the armature never moves: no dip), the driver must report STUCK one
+    tick after COIL_SEAT_LATEST_TICKS."""
+    from coildrive.codegen.header import HeaderView
+    d = example_design("locker-latch-12v")
+    out, cap = capture(tmp_path, latch_firmware, "latch", drive=LATCH)
+    r = run_cli("check", str(out), str(LATCH), "--json")
+    doc = json.loads(r.stdout)
+    assert r.returncode == 0, {i["name"]: (i["status"], i["detail"]) for i in doc["items"]}
+    assert next(i for i in doc["items"] if i["name"] == "seated_time")["status"] == "pass"
+    out, cap = capture(tmp_path, latch_firmware, "stuck", "--fault", "stuck", actuations="1", drive=LATCH)
+    on = next(e.index for e in cap.events if e.kind == EventKind.ON)
+    faults = [e for e in cap.events if e.kind == EventKind.FAULT and e.index >= on]
+    assert {e.value for e in cap.events if e.kind == EventKind.FAULT} == {int(FaultCode.STUCK)}
+    late = HeaderView(d).value("SEAT_LATEST_TICKS")
+    after = (faults[0].index - on) / d.drive.board.adc.sample_rate
+    tick = 1 / d.drive.board.tick.rate
+    assert late * tick <= after <= (late + 2) * tick, f"STUCK {after * 1e3:.3g} ms after ON"
+
+
+def test_host_commands_are_served_through_the_c_encoder(tmp_path, firmware, monkeypatch):
+    """START / STOP / QUERY_INFO / SET_HOLD_DUTY in process: the replies and the events are
+    the C encoder's frames, read back by the host decoder."""
+    from coildrive.bench import FrameDecoder
+    from coildrive.bench.device import DeviceOptions
+    from coildrive.bench.firmware_device import FirmwareDevice
+    from coildrive.bench.messages import Command, Event, Info, Opcode, Reply, ReplyStatus
+    from coildrive.bench.protocol import FrameEncoder
+    from coildrive.codegen.host_build import build_firmware
+
+    d = example_design("demo-valve")
+    dev = FirmwareDevice(d, build_firmware(firmware, d, cache=tmp_path / "cache"),
+                         DeviceOptions(first_actuation=10.0))
+    enc, dec = FrameEncoder(), FrameDecoder()
+    msgs = dec.feed(dev.read(0.01))
+    for op, arg in ((Opcode.QUERY_INFO, 0), (Opcode.SET_HOLD_DUTY, 30000), (Opcode.START, 20000)):
+        dev.receive(enc.encode(Command(op, arg)), 0.02)
+    t = 0.02
+    while t < 3.0:
+        t += 0.01
+        msgs += dec.feed(dev.read(t))
+    replies = [(m.opcode, m.status, m.value) for m in msgs if isinstance(m, Reply)]
+    duty = round(d.timer.compare_ticks / d.timer.period_ticks * 0xFFFF)
+    assert replies == [(Opcode.QUERY_INFO, ReplyStatus.OK, 0), (Opcode.SET_HOLD_DUTY, ReplyStatus.OUT_OF_RANGE, duty),
+                       (Opcode.START, ReplyStatus.OK, 20000)]
+    assert sum(isinstance(m, Info) for m in msgs) == 2, "at start and on QUERY_INFO"
+    kinds = [m.kind for m in msgs if isinstance(m, Event)]
+    assert kinds[-4:] == [EventKind.TEMPERATURE, EventKind.ON, EventKind.PEAK_END, EventKind.OFF]
+    ev = {m.kind: m.index for m in msgs if isinstance(m, Event)}
+    fs = d.drive.board.adc.sample_rate
+    held = (ev[EventKind.OFF] - ev[EventKind.PEAK_END]) / fs
+    assert abs(held - 0.020) <= 2 / d.drive.board.tick.rate, f"held {held * 1e3:.3f} ms for START 20000 us"
