@@ -30,11 +30,21 @@ def example_design(name: str, text_edit: tuple[str, str] | None = None):
     if text_edit is None:
         return design(load_drive(path))
     import tempfile
-    text = path.read_text().replace(*text_edit)
+    text = as_edited(path.read_text(), text_edit)
     with tempfile.TemporaryDirectory() as tmp:
         p = Path(tmp) / path.name
         p.write_text(text)
         return design(load_drive(p))
+
+
+def as_edited(text: str, text_edit: tuple[str, str]) -> str:
+    """``text`` with the replacement; a current-mode variant drops the voltage-mode-only
+    keys (``regulation``, and the supply-compensated peak) the file may give."""
+    import re
+    text = text.replace(*text_edit)
+    if 'mode = "current"' in text:
+        text = re.sub(r"^(regulation|compensate) = .*\n", "", text, flags=re.M)
+    return text
 
 
 def conversions_per_tick(d) -> int:

@@ -81,11 +81,26 @@ def test_table_entries_are_the_smallest_compare_counts(drive):
     hot = _hot_temps(d)
     assert len(hot) == 4, hot
     target = drive.hold.current
-    for v, cmp in zip(d.duty_table.design_supply_v, d.duty_table.compare_ticks):
+    # every coil of the envelope: each tolerance corner cold (lowest ambient) and hottest
+    coils = [(t, rf, lf) for (rf, lf), t in hot.items()] + \
+            [(drive.ambient.min, rf, lf) for (rf, lf) in hot]
+    below = None
+    entries = list(zip(d.duty_table.design_supply_v, d.duty_table.compare_ticks))
+    for v, cmp in entries:
         held = min(_mean(drive, d, v, t, rf, lf, cmp) for (rf, lf), t in hot.items())
         short = min(_mean(drive, d, v, t, rf, lf, cmp - 1) for (rf, lf), t in hot.items())
         assert held >= target, f"entry at {v:.4f} V: compare {cmp} holds only {held:.6e} A"
-        assert short < target, f"entry at {v:.4f} V: compare {cmp - 1} still holds {short:.6e} A"
+        here = [_mean(drive, d, v, t, rf, lf, cmp) for t, rf, lf in coils]
+        if short >= target:
+            # one count less would hold: then it must be what keeps a higher supply from
+            # lowering the current of some coil (the current at the bottom of the entry below)
+            less = [_mean(drive, d, v, t, rf, lf, cmp - 1) for t, rf, lf in coils]
+            assert below is not None and any(a < b for a, b in zip(less, below)), (
+                f"entry at {v:.4f} V: compare {cmp - 1} still holds {short:.6e} A")
+        if below is not None:
+            assert all(a >= b * (1 - 1e-12) for a, b in zip(here, below)), \
+                f"entry at {v:.4f} V lowers the current of a coil"
+        below = here
     # the lowest bus voltage that reads each entry's code (a truncating ADC, exact divider)
     lsb = drive.board.adc.reference / 2**drive.board.adc.bits * drive.board.supply_sense.divider
     for code, v in zip(d.duty_table.adc_codes, d.duty_table.design_supply_v):

@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import pytest
 
+from coildrive.design.regulation import table_lookup
+
 from coildrive.bench.messages import EventKind, FaultCode
 from coildrive.codegen.header import HeaderView
 from coildrive.codegen.driver import OC_BLANK_SAMPLES, SUPPLY_SAMPLES, dip_codes, open_load_ticks
@@ -28,16 +30,24 @@ def switch_offs(run, after_tick: int) -> list[tuple[int, int]]:
     return [(t, c) for t, c, on in run.calls("s") if on == 0 and t >= after_tick]
 
 
+def _peak_at(d, code: int) -> int:
+    """The peak ticks the header gives for a supply-sense reading (its peak table with
+    PEAK_COMPENSATED, else PEAK_TICKS)."""
+    if d.peak_table is None:
+        return d.pull_in.peak_ticks
+    return d.peak_table.peak_ticks[table_lookup(d.peak_table, code)]
+
+
 def test_phase_timing_and_lockout(tmp_path):
     d = example_design("demo-valve")
-    peak, lockout = d.pull_in.peak_ticks, d.release.lockout_ticks
+    peak, lockout = _peak_at(d, nominal_supply_code(d)), d.release.lockout_ticks
     run = run_host(tmp_path, d, [("supply", nominal_supply_code(d)), ("full", 2 * d.adc.pull_in_code),
                                  ("run", 3), ("on", 0), ("run", peak + 20), ("off", 0), ("run", 1),
                                  ("on", 0), ("run", lockout + 5)])
     ev = run.events()
     t_on = 3
     assert ev[0] == (t_on, ON, 0)
-    assert ev[1] == (t_on + peak, PEAK_END, 0), "the peak lasts PEAK_TICKS ticks"
+    assert ev[1] == (t_on + peak, PEAK_END, 0), "the peak lasts the header's ticks for the supply"
     t_off = t_on + peak + 20
     assert ev[2] == (t_off, OFF, 0)
     # the switch goes on / off at the first conversion after the tick that decided it
@@ -69,10 +79,10 @@ def test_hold_compare_follows_the_duty_table(tmp_path, example):
 
 
 def test_fixed_regulation_holds_the_designed_compare(tmp_path):
-    d = example_design("demo-valve")
+    d = example_design("demo-valve", ('regulation = "supply_table"', 'regulation = "fixed"'))
+    assert d.hold.regulation == "fixed"
     run = run_host(tmp_path, d, [("supply", d.adc.supply_max_code), ("full", 2 * d.adc.pull_in_code),
-                                 ("run", 1), ("on", 0), ("run", d.pull_in.peak_ticks + 3)],
-                   flags=("-DCOIL_HOLD_REGULATION=0U",))
+                                 ("run", 1), ("on", 0), ("run", d.pull_in.peak_ticks + 3)])
     compares = [c for _, _, c in run.calls("p")]
     assert compares[-1] == d.timer.compare_ticks
 
@@ -190,17 +200,13 @@ def test_current_mode_hold_arms_the_threshold_and_switches(tmp_path, control):
 
 
 def test_supply_compensated_peak_takes_its_length_from_the_header(tmp_path):
-    """With PEAK_COMPENSATED 1 (design headers of issue 11) the peak lasts
-    prefix_peak_ticks_for_supply(code) ticks; here a stand-in header function gives a
-    short peak above a supply code and the designed one below it."""
+    """With PEAK_COMPENSATED 1 the peak lasts prefix_peak_ticks_for_supply(code) ticks:
+    the demo's header, at a low and a high supply reading."""
     d = example_design("demo-valve")
-    split = nominal_supply_code(d)
-    (tmp_path / "peak.h").write_text(
-        "#include <stdint.h>\n#define COIL_PEAK_COMPENSATED 1U\n"
-        f"static inline uint16_t coil_peak_ticks_for_supply(uint16_t code)\n"
-        f"{{ return code > {split}U ? 20U : {d.pull_in.peak_ticks}U; }}\n")
-    flags = ("-include", str(tmp_path / "peak.h"))
-    for supply, peak in ((split + 10, 20), (split - 10, d.pull_in.peak_ticks)):
+    assert d.peak_table is not None, "precondition: the demo's peak is compensated"
+    for supply in (d.adc.supply_min_code, d.adc.supply_max_code):
+        peak = _peak_at(d, supply)
         run = run_host(tmp_path, d, [("supply", supply), ("full", 2 * d.adc.pull_in_code), ("run", 1), ("on", 0),
-                                     ("run", d.pull_in.peak_ticks + 5)], flags=flags)
+                                     ("run", d.pull_in.peak_ticks + 5)])
         assert run.events()[:2] == [(1, ON, 0), (1 + peak, PEAK_END, 0)], f"supply code {supply}"
+    assert _peak_at(d, d.adc.supply_max_code) < _peak_at(d, d.adc.supply_min_code)

