@@ -10,6 +10,7 @@ outputs that show one.
 from __future__ import annotations
 
 from ..config import Drive
+from ..errors import InputError
 from .firmware import firmware_setting  # noqa: F401  (re-exported: part of this module's API)
 from .holds import strategy_for
 from .result import Design
@@ -24,12 +25,29 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     return strategy_for(drive).design(drive, samples, seed)
 
 
+#: Most samples one simulated actuation may have (a CSV of about 0.4 GB); past it the
+#: run is refused before anything is computed.
+MAX_WAVEFORM_SAMPLES = 4_000_000
+
+
 def actuation(design: Design, supply: float, coil_temp: float, hold_time: float,
               r_factor: float = 1.0, l_factor: float = 1.0, points: int = 8, label: str = "",
               strict: bool = True):
     """One actuation of ``design`` at one operating point (V, degC, s, tolerance factors),
     with the design's peak and its hold as the firmware runs it: a
-    :class:`~coildrive.model.waveform.Waveform`. ``points`` samples per PWM segment."""
+    :class:`~coildrive.model.waveform.Waveform`. ``points`` samples per PWM segment.
+
+    Raises :class:`~coildrive.errors.InputError` (naming ``--hold-time``) when the
+    waveform would hold more than :data:`MAX_WAVEFORM_SAMPLES` samples."""
+    f = design.hold.frequency_hz
+    if design.hold.current_mode is not None:
+        f = max(f, design.hold.current_mode.max_frequency_hz)
+    samples = 2.0 * points * hold_time * f + 80.0 * points
+    if not samples <= MAX_WAVEFORM_SAMPLES:
+        raise InputError("--hold-time", "", f"{hold_time:g} s of hold at {f:.6g} Hz with {points} "
+                         f"points a segment is about {samples:,.0f} samples, more than the "
+                         f"{MAX_WAVEFORM_SAMPLES:,} one actuation may have: shorten --hold-time or "
+                         "lower --points")
     return strategy_for(design.drive).actuation(design, supply, coil_temp, hold_time, r_factor,
                                                 l_factor, points, label, strict)
 

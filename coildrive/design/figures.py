@@ -166,9 +166,11 @@ def pull_in_result(drive: Drive, grid: CornerGrid, res: PointResults, pk,
     k_end = worst(peak_end)
     reached = pk.ticks is not None
     k_f = pk.k_force
+    if not reached:  # name where it is not reached: the lowest steady current
+        k_f = int(np.argmin(np.asarray(res.loop.v_on / res.loop.r_on, float)))
     return PullInResult(
         current_a=drive.pull_in.current, time_s=pk.t_pull if reached else None,
-        worst_corner=grid.label(pk.k_pull), margin=drive.pull_in.margin,
+        worst_corner=grid.label(pk.k_pull if reached else k_f), margin=drive.pull_in.margin,
         peak_time_s=pk.ticks / rate if reached else None, peak_ticks=pk.ticks,
         peak_end_current_max_a=float(peak_end[k_end]) if reached else 0.0,
         peak_end_corner=grid.label(k_end) if reached else "",

@@ -350,7 +350,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                                               severity="warning"))
     notes = cautions(drive, hold, release) + loss_cautions(drive, hold, release, split)
     points = tuple(
-        hold_voltage.plot_point(drive, name, label, r, k, max(2.0 * peak_time, 20.0 * (
+        hold_voltage.plot_point(drive, name, label, r, k, min(max(2.0 * peak_time, 20.0 * (
+            float(r.hold.period[k]) if np.isfinite(r.hold.period[k]) else 1e-4)), 2000.0 * (
             float(r.hold.period[k]) if np.isfinite(r.hold.period[k]) else 1e-4)))
         for name, label, r, k in (("nominal", "nominal", nom, 0),
                                   ("worst", "worst pull-in: " + grid.label(k_pull), res, k_pull)))

@@ -146,10 +146,14 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
             "safety-relevant actuator (an armature that fails to release keeps the load engaged).")
     notes += loss_cautions(drive, hold, release, split)
     peak_time = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate
-    hold_time = max(2.0 * peak_time, 20.0 / f_hold)
+    # the plot shows the hold for twice the peak, at least 20 and at most 2000 PWM periods
+    hold_time = min(max(2.0 * peak_time, 20.0 / f_hold), 2000.0 / f_hold)
+    k_w = pk.k_pull
+    if pk.ticks is None:  # not reached: draw where the steady current is lowest
+        k_w = int(np.argmin(np.asarray(res_low.loop.v_on / res_low.loop.r_on, float)))
+    what = "worst pull-in: " if pk.ticks is not None else "pull-in not reached: "
     points = (plot_point(drive, "nominal", "nominal", nom, 0, hold_time),
-              plot_point(drive, "worst", "worst pull-in: " + env.label(pk.k_pull), res_low, pk.k_pull,
-                         hold_time))
+              plot_point(drive, "worst", what + env.label(k_w), res_low, k_w, hold_time))
     out = Design(drive=drive, pull_in=pull_in, hold=hold, release=release, timer=timer_result,
                  adc=thresholds, duty_table=table, corners=corners, nominal=nominal,
                  checks=checks, cautions=notes, monte_carlo=None,
