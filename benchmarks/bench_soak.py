@@ -7,13 +7,14 @@ the emulator is stopped first (SIGTERM), so that the capture reads the line to i
 and exits on the end of file. Reported:
 
 * frames received, lost frames, CRC errors and malformed frames as the capture file
-  counts them, and the frames the emulator says it damaged on the line (its stderr line
-  ``line: N frames sent, D damaged on the line ...``). Every damaged frame must show on
-  the host as exactly one lost frame (docs/protocol.md section 5), so lost must equal
-  damaged, less the damaged frames the host could not see: those sent before the first
-  intact frame it read (the capture opens the port a moment after the emulator starts)
-  and after the last; with no bytes dropped unread (the emulator's ``note:`` line) both
-  are at most a frame or two;
+  counts them, and the frames the emulator damaged on the line (its ``--line-log``, one
+  row per damaged frame with its sequence number). Every damaged frame must show on the
+  host as exactly one lost frame (docs/protocol.md section 5), and so must an intact frame
+  that a damaged delimiter ran into. The host cannot see damage before the first intact
+  frame it read (the capture opens the port a moment after the emulator starts, and
+  pyserial empties the port's buffer on opening) or after the last, so the check counts
+  the damaged frames between those two, found by decoding the bytes the capture received
+  (its ``--raw`` file): lost must equal that count exactly;
 * the capture process's resident memory sampled every 5 s (must stay flat: growth from
   the first to the last minute) and its CPU time as a fraction of the wall time.
 
@@ -66,12 +67,16 @@ def main() -> None:
     cli = [sys.executable, "-m", "coildrive"]
     with tempfile.TemporaryDirectory() as tmp:
         out = Path(tmp) / "soak.cdcap"
-        emu = subprocess.Popen(cli + ["emulate", str(DRIVE), "--drop-bytes", args.drop_bytes,
+        raw = Path(tmp) / "soak.raw"
+        line_log = Path(tmp) / "line.csv"
+        emu = subprocess.Popen(cli + ["emulate", str(DRIVE), "--line-log", str(line_log),
+                                      "--drop-bytes", args.drop_bytes,
                                       "--corrupt-bytes", args.corrupt_bytes, "--noise", args.noise,
                                       "--seed", "5", "--period", "0.25 s"],
                                stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env)
         port = emu.stdout.readline().strip()
-        cap = subprocess.Popen(cli + ["capture", port, "--drive", str(DRIVE), "--out", str(out)],
+        cap = subprocess.Popen(cli + ["capture", port, "--drive", str(DRIVE), "--out", str(out),
+                                      "--raw", str(raw)],
                                stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True, env=env)
         t0 = time.monotonic()
         end = t0 + args.minutes * 60
@@ -90,6 +95,7 @@ def main() -> None:
         _, cap_err = cap.communicate(timeout=60)
         got = read_capture(out)
         size = out.stat().st_size
+        expected, between, raw_lost = _expected_lost(raw.read_bytes(), line_log.read_text())
     line = re.search(r"line: (\d+) frames sent, (\d+) damaged on the line \((\d+) bytes dropped, "
                      r"(\d+) changed\)", emu_err)
     unread = re.search(r"note: (\d+) bytes dropped while nobody read", emu_err)
@@ -105,9 +111,11 @@ def main() -> None:
           f"dropped, {changed:,} changed), {int(unread.group(1)) if unread else 0:,} bytes dropped unread")
     print(f"capture:  {len(got):,} samples, {got.lost_frames:,} lost frames, {got.crc_errors:,} CRC errors, "
           f"{got.malformed_frames:,} malformed, {len(got.events):,} events, file {size / 1e6:.1f} MB")
-    print(f"lost - damaged = {got.lost_frames - damaged:+d} "
-          "(damaged frames still in the pty when the capture opened it, flushed by pyserial, "
-          "or when the emulator closed it, are never seen by the host)")
+    verdict = "equal" if got.lost_frames == expected == raw_lost else "NOT EQUAL"
+    print(f"damaged between the first and the last frame the host read: {between:,} "
+          f"(+ {expected - between} intact frames run into by a damaged delimiter) = {expected:,}; "
+          f"lost on the host {got.lost_frames:,} in the capture file, {raw_lost:,} decoding its "
+          f"raw bytes again ({verdict})")
     print(f"capture RSS: first minute {max(first) / 1024:.1f} MiB, last minute {max(last) / 1024:.1f} MiB "
           f"(growth {(max(last) - max(first)) / 1024:+.1f} MiB over {rss[-1][0] / 60:.1f} min)")
     if cpu_at_start and cpu_end:
@@ -115,6 +123,30 @@ def main() -> None:
         print(f"capture CPU: {frac * 100:.1f} % of one core over {wall / 60:g} min")
     print("capture's last line: " + cap_err.strip().splitlines()[-1])
     exact(args)
+
+
+def _expected_lost(raw: bytes, line_log: str) -> tuple[int, int, int]:
+    """The lost frames the host must count: ``(expected, damaged between, lost on
+    decoding raw again)``.
+
+    ``raw`` is what the capture read, ``line_log`` the emulator's damaged frames (frame
+    number = sequence number unwrapped: the emulator numbers every frame from 0). The
+    sequence numbers the host decoded, unwrapped, give the first and last frame it saw;
+    every damaged frame strictly between them is lost, and so is an intact frame run into
+    by the damaged delimiter of the frame before it."""
+    from coildrive.bench.protocol import FrameDecoder
+
+    dec = FrameDecoder()
+    seqs = [m.seq for m in dec.feed(raw) + dec.finish() if m.seq is not None]
+    first = last = seqs[0]                 # the first frames sent are numbered below 65536
+    for prev, seq in zip(seqs, seqs[1:]):
+        last += (seq - prev) % 65536
+    rows = [line.split(",") for line in line_log.splitlines()[1:] if line]
+    damaged = {int(frame): bool(int(delim)) for frame, _, _, delim in rows}
+    between = sum(1 for f in damaged if first < f < last)
+    swallowed = sum(1 for f, delim in damaged.items()
+                    if delim and (f + 1) not in damaged and first < f + 1 < last)
+    return between + swallowed, between, dec.stats.lost_frames
 
 
 def exact(args) -> None:

@@ -240,6 +240,31 @@ def test_pty_capture_equals_what_was_sent_and_ctrl_c_keeps_it(demo, pty_device, 
 
 
 @pytest.mark.slow
+def test_raw_keeps_the_bytes_as_they_arrived_and_replays_to_the_same_capture(demo, pty_device, tmp_path):
+    """``--raw``: every byte read, unchanged, in a file that ``--replay`` decodes into the
+    same samples and events as the live capture; an existing raw file is never replaced
+    without ``--overwrite``."""
+    sent = synth(demo)
+    wire = b"".join(frames_of(messages_of(sent)))
+    out, raw = tmp_path / "live.cdcap", tmp_path / "live.raw"
+    cap = Capture(pty_device.path, "--board", BOARD, "--out", str(out), "--raw", str(raw))
+    cap.started()
+    pty_device.stream([wire])
+    wait_for(lambda: file_records(out) >= records_in(sent), what="every record in the file")
+    cap.proc.send_signal(signal.SIGINT)
+    assert cap.wait() == 0, cap.err
+    assert f"raw bytes {raw}" in cap.err
+    assert raw.read_bytes() == wire
+    again = tmp_path / "again.cdcap"
+    r = runner.invoke(app, ["capture", "--replay", str(raw), "--board", BOARD, "--out", str(again)])
+    assert r.exit_code == 0, r.output
+    assert_same(read_capture(again), sent, "replayed raw bytes")
+    r = runner.invoke(app, ["capture", "loop://", "--board", BOARD, "--out", str(tmp_path / "b.cdcap"),
+                            "--raw", str(raw)])
+    assert r.exit_code == 2 and "exists" in r.output and raw.read_bytes() == wire
+
+
+@pytest.mark.slow
 def test_actuations_stop_after_the_release_and_the_capture_checks(demo, pty_device, tmp_path):
     sent = synth(demo, actuations=3)
     out = tmp_path / "two.cdcap"
@@ -562,6 +587,9 @@ def test_guess_mode():
     (["--replay", "@missing.bin", "--board", BOARD, "--out", "@x.cdcap", "--duration", "1"], "--duration"),
     (["/dev/no-such-tty", "--board", BOARD, "--out", "@x.cdcap"], "cannot open the port"),
     (["loop://", "--drive", "@missing.toml", "--out", "@x.cdcap"], "missing.toml"),
+    (["--replay", "@missing.bin", "--board", BOARD, "--out", "@x.cdcap", "--raw", "@r.bin"], "--raw"),
+    (["loop://", "--board", BOARD, "--out", "@x.cdcap", "--raw", "@x.cdcap"], "--raw"),
+    (["loop://", "--board", BOARD, "--out", "@x.cdcap", "--raw", "@no/such/r.bin"], "does not exist"),
 ])
 def test_bad_input_is_one_line_exit_2(args, message, tmp_path):
     args = [str(tmp_path / a[1:]) if a.startswith("@") else a for a in args]

@@ -161,3 +161,31 @@ def test_emulator_sends_whether_or_not_anyone_reads():
     assert dev.stats.bytes_sent > emu.unread_dropped
     texts = [e.text for e in entries]
     assert texts.count("state on") == texts.count("state off") >= 3
+
+
+@pytest.mark.slow
+def test_line_log_lists_the_frames_the_line_damaged(tmp_path):
+    """``--line-log``: one CSV row per damaged frame, as many as the ``line:`` summary counts,
+    numbered in sending order with their 16-bit sequence numbers."""
+    log = tmp_path / "line.csv"
+    proc, _ = start(str(EXAMPLES / "demo-valve.toml"), "--duration", "0.6", "--period", "0.2 s",
+                    "--drop-bytes", "2e-3", "--corrupt-bytes", "2e-3", "--seed", "3",
+                    "--line-log", str(log))
+    _, err = proc.communicate(timeout=30)
+    assert proc.returncode == 0, err
+    summary = [line for line in err.splitlines() if line.startswith("line: ")]
+    damaged = int(summary[0].split(", ")[1].split()[0])
+    rows = log.read_text().splitlines()
+    assert rows[0] == "frame,seq,kind,delimiter_damaged"
+    body = [row.split(",") for row in rows[1:]]
+    assert len(body) == damaged > 0
+    frames = [int(r[0]) for r in body]
+    assert frames == sorted(set(frames))
+    assert all(int(r[1]) == int(r[0]) % 65536 and r[2] in {"SAMPLES", "EVENT", "INFO", "REPLY"}
+               and r[3] in {"0", "1"} for r in body)
+
+
+def test_line_log_in_a_missing_folder_is_one_line(tmp_path):
+    r = CliRunner().invoke(app, ["emulate", str(EXAMPLES / "demo-valve.toml"), "--line-log",
+                                 str(tmp_path / "no" / "line.csv")])
+    assert r.exit_code == 2 and "--line-log" in r.output and len(r.output.strip().splitlines()) == 1

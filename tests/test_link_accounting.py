@@ -125,3 +125,53 @@ def test_supply_code_is_read_at_the_bits_info_states(adc_bits, tmp_path):
     assert header["supply_v"] == pytest.approx(expected, rel=1e-12)
     assert header["supply_v"] == pytest.approx(supply_from_codes(drive, [code], adc_bits), rel=1e-12)
     assert abs(header["supply_v"] - bus_v) <= 0.5 * 3.3 / 2**adc_bits * 11, "within half a step"
+
+
+def test_the_devices_damage_log_names_every_frame_the_host_loses():
+    """``VirtualDevice.damaged`` (what ``emulate --line-log`` writes) against the device's
+    own record of every frame sent and against the host decoder fed the damaged bytes:
+    each damaged frame, and each intact one run into by a damaged delimiter, is exactly
+    one lost frame (docs/protocol.md section 5)."""
+    from coildrive.bench.device import DeviceOptions, VirtualDevice
+    from coildrive.bench.protocol import FrameDecoder
+    from coildrive.design import design
+
+    d = design(load_drive(EXAMPLES / "demo-valve.toml"))
+    dev = VirtualDevice(d.drive, DeviceOptions(drop_bytes=3e-4, corrupt_bytes=3e-4, seed=7,
+                                               period=0.25, keep_sent=True), design=d)
+    dec = FrameDecoder()
+    t = 0.0
+    while t < 2.0:
+        t += 0.05
+        dec.feed(dev.read(t))
+    dec.finish()
+    assert len(dev.damaged) == dev.stats.frames_damaged > 20
+    assert [(f.frame, f.seq, f.delimiter_damaged) for f in dev.damaged] == \
+        [(k, s.seq, s.delimiter_damaged) for k, s in enumerate(dev.sent) if s.damaged]
+    assert all(f.seq == f.frame % 65536 for f in dev.damaged)
+    frames = {f.frame for f in dev.damaged}
+    swallowed = sum(1 for f in dev.damaged if f.delimiter_damaged and f.frame + 1 not in frames
+                    and f.frame + 1 < len(dev.sent))
+    assert dec.stats.lost_frames == len(dev.damaged) + swallowed
+
+
+def test_a_long_paced_capture_that_lost_pause_frames_reads(tmp_path):
+    """Hundreds of actuations, each a few samples then a PAUSE far longer than the samples
+    (a device streaming at line rate), three PAUSE frames lost on the line: the index
+    jumps are explained (pauses, and lost frames that may have been pauses) and the file
+    reads, with every pause counted only once however many jumps there are. A 10-minute
+    soak over a damaged line was once refused here (benchmarks/bench_soak.py)."""
+    wire, seq, index = bytearray(encode_message(INFO, 0)), 1, 0
+    lost_pauses = {100, 200, 300}
+    for block in range(400):
+        wire += encode_message(Samples(index, codes(index % 4096)), seq)
+        seq, index = seq + 1, index + 64
+        if block not in lost_pauses:                     # a lost frame: its seq never arrives
+            wire += encode_message(Event(EventKind.PAUSE, index, 50_000), seq)
+        seq, index = seq + 1, index + 50_000
+    raw = tmp_path / "paced.bin"
+    raw.write_bytes(bytes(wire))
+    replay(raw, tmp_path / "paced.cdcap", meta={"board": BOARD})
+    cap = read_capture(tmp_path / "paced.cdcap")
+    assert len(cap) == 400 * 64 and cap.lost_frames == 3
+    assert cap.index[-1] == 399 * 50_064 + 63

@@ -629,15 +629,27 @@ def _check_structure(rec: np.ndarray, meta: CaptureMeta, source: str) -> None:
           lambda p: f"a frame-errors record of type {aux[p]}, expected 0 (CRC) or 1 (malformed)")
 
 
-def _pause_cover(pauses: list[tuple[int, int]], a: int, b: int) -> int:
-    """Indices in ``[a, b)`` that the ``(start, end)`` pauses cover (merged)."""
-    covered, reach = 0, a
+def _pause_cover(pauses: list[tuple[int, int]], a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Indices in each ``[a[k], b[k])`` that the ``(start, end)`` pauses cover (overlapping
+    pauses merged first), vectorised: O((jumps + pauses) log pauses), whatever a damaged
+    file holds."""
+    if not pauses:
+        return np.zeros(a.shape, np.int64)
+    merged: list[list[int]] = []
     for lo, hi in sorted(pauses):
-        lo, hi = max(lo, reach), min(hi, b)
-        if hi > lo:
-            covered += hi - lo
-            reach = hi
-    return covered
+        if merged and lo <= merged[-1][1]:
+            merged[-1][1] = max(merged[-1][1], hi)
+        else:
+            merged.append([lo, hi])
+    lo, hi = (np.array(col, np.int64) for col in zip(*merged))
+    before = np.concatenate(([0], np.cumsum(hi - lo)))     # covered length before interval i
+
+    def covered_below(x: np.ndarray) -> np.ndarray:        # covered indices < x
+        i = np.searchsorted(lo, x, side="right") - 1
+        inside = np.where(i >= 0, np.clip(x - lo[np.maximum(i, 0)], 0,
+                                          (hi - lo)[np.maximum(i, 0)]), 0)
+        return np.where(i >= 0, before[np.maximum(i, 0)] + inside, 0)
+    return covered_below(b) - covered_below(a)
 
 
 def check_index_jumps(index: np.ndarray, events: Iterable[CaptureEvent], slack: int, source: str,
@@ -651,21 +663,25 @@ def check_index_jumps(index: np.ndarray, events: Iterable[CaptureEvent], slack: 
     skipped = np.diff(index) - 1
     pauses = [(e.index, e.index + e.value) for e in events
               if e.kind == EventKind.PAUSE and e.value > 0]
-    total = 0
-    for k in np.flatnonzero(skipped > 0):
-        jump = int(skipped[k])
-        if jump > slack or total + jump > slack + index.size:
-            jump -= _pause_cover(pauses, int(index[k]) + 1, int(index[k + 1]))
-        total += jump
-        if jump > slack:
-            raise InputError(source, where(int(k) + 1), f"the sample index jumps from "
-                             f"{int(index[k])} to {int(index[k + 1])}: {jump:,} indices that no "
-                             f"lost frame, overrun or pause explains (at most {slack:,}; a damaged "
-                             "record?)")
-        if total > slack + index.size:
-            raise InputError(source, where(int(k) + 1), f"the sample indices skip {total:,} "
-                             f"unexplained indices up to here, more than the {index.size:,} "
-                             f"samples the file holds + {slack:,} (damaged records?)")
+    at = np.flatnonzero(skipped > 0)
+    if at.size == 0:
+        return
+    unexplained = skipped[at] - _pause_cover(pauses, index[at] + 1, index[at + 1])
+    too_far = np.flatnonzero(unexplained > slack)
+    total = np.cumsum(np.maximum(unexplained, 0))
+    too_many = np.flatnonzero(total > slack + index.size)
+    if too_far.size and (not too_many.size or too_far[0] <= too_many[0]):
+        n = int(too_far[0])
+        k = int(at[n])
+        raise InputError(source, where(k + 1), f"the sample index jumps from "
+                         f"{int(index[k])} to {int(index[k + 1])}: {int(unexplained[n]):,} indices "
+                         f"that no lost frame, overrun or pause explains (at most {slack:,}; a "
+                         "damaged record?)")
+    if too_many.size:
+        n = int(too_many[0])
+        raise InputError(source, where(int(at[n]) + 1), f"the sample indices skip "
+                         f"{int(total[n]):,} unexplained indices up to here, more than the "
+                         f"{index.size:,} samples the file holds + {slack:,} (damaged records?)")
 
 
 def parse_records(body: bytes | memoryview, meta: CaptureMeta, source: str = "memory") -> Capture:
@@ -714,8 +730,11 @@ def parse_records(body: bytes | memoryview, meta: CaptureMeta, source: str = "me
             placed.append((int(pos), at - int(index[near])))
     lost = sum(g.frames for g in gaps)
     overrun = sum(e.value for e in events if e.kind == EventKind.OVERRUN and e.value > 0)
-    slack = JUMP_FLOOR + lost * MAX_SAMPLES_PER_FRAME + overrun
     pause_total = sum(e.value for e in events if e.kind == EventKind.PAUSE and e.value > 0)
+    # a lost frame may have been a SAMPLES frame or a PAUSE like those the file holds: each
+    # explains at most the larger of the two (a damaged line loses PAUSE frames too)
+    widest_pause = max((e.value for e in events if e.kind == EventKind.PAUSE), default=0)
+    slack = JUMP_FLOOR + lost * max(MAX_SAMPLES_PER_FRAME, widest_pause) + overrun
     for pos, d in placed:
         if abs(d) > slack + pause_total:
             raise InputError(source, _offset(pos), f"an event or lost-frames record {d:+,} sample "

@@ -176,6 +176,19 @@ class SentFrame:
 
 
 @dataclass(frozen=True)
+class DamagedFrame:
+    """A frame the line damaged (:attr:`VirtualDevice.damaged`): its number among the
+    frames sent (0 first, never wrapping), its 16-bit sequence number, its message kind
+    (``SAMPLES``, ``EVENT``, ``INFO``, ``REPLY``) and whether its delimiter (the last byte)
+    was dropped or changed, which runs it into the next frame."""
+
+    frame: int
+    seq: int
+    kind: str
+    delimiter_damaged: bool
+
+
+@dataclass(frozen=True)
 class LogEntry:
     """Something to report, at device time ``time`` s: ``state on``, ``state off`` or a
     command line ``command <OPCODE> <argument> -> <status>``."""
@@ -306,6 +319,8 @@ class VirtualDevice(LineOutput):
                          has_position_switch=drive.armature is not None)
         self.stats = DeviceStats()
         self.sent: list[SentFrame] = []
+        self.damaged: list[DamagedFrame] = []
+        """Every frame the line damaged, in order (``emulate --line-log`` writes them)."""
         self.host = FrameDecoder()
         self._encoder = FrameEncoder()
         self._noise_seed = options.seed
@@ -649,9 +664,12 @@ class VirtualDevice(LineOutput):
         wire, _, _, item, damaged, end_damaged = current
         if item.message is None:
             return
+        m = item.message
+        if damaged:
+            self.damaged.append(DamagedFrame(self.stats.frames_sent, item.seq,
+                                             type(m).__name__.upper(), bool(end_damaged)))
         self.stats.frames_sent += 1
         self.stats.frames_damaged += bool(damaged)
-        m = item.message
         if isinstance(m, Samples):
             self.stats.samples_sent += len(m.codes)
         elif isinstance(m, Event) and m.kind == EventKind.PAUSE:

@@ -398,7 +398,7 @@ class DeviceLink:
                  stop_after_actuations: int | None = None, read_timeout: float = READ_TIMEOUT_S,
                  release_quiet_s: float = RELEASE_QUIET_S, release_max_s: float = RELEASE_MAX_S,
                  supply_volts_per_code: float | None = None, temperature_events: bool = False,
-                 overwrite: bool = True):
+                 overwrite: bool = True, raw: str | os.PathLike | None = None):
         if stop_after_actuations is not None and stop_after_actuations < 1:
             raise ValueError(f"stop_after_actuations {stop_after_actuations} must be >= 1")
         self.baud = int(baud)
@@ -418,6 +418,15 @@ class DeviceLink:
                 self._close_port()
                 raise
         self._writer = writer
+        self._raw = None
+        if raw is not None:
+            try:
+                self._raw = new_raw_file(raw, overwrite, option="--raw")
+            except BaseException:
+                if writer is not None:
+                    writer.close()
+                self._close_port()
+                raise
         self._pipe = _Pipeline(writer, self.text, meta.get("sample_rate_hz"), stop_after_actuations,
                                release_quiet_s, release_max_s, supply_volts_per_code,
                                temperature_events, meta.get("adc_bits"))
@@ -494,6 +503,12 @@ class DeviceLink:
                     if not self._stop.is_set():
                         self._error = f"the port failed ({_describe(err)})"
                     break
+                if data and self._raw is not None:
+                    try:
+                        self._raw.write(data)    # unbuffered: a killed capture keeps every byte read
+                    except OSError as err:
+                        self._error = f"the raw file could not be written ({_describe(err)})"
+                        break
                 with self._lock:
                     if data:
                         if len(self._sniff) < SNIFF_BYTES:
@@ -513,6 +528,8 @@ class DeviceLink:
                     pipe.end()
                 if self._writer is not None:
                     self._writer.close()   # flush + fsync: everything so far is kept
+                if self._raw is not None:
+                    self._raw.close()
             except OSError as err:
                 self._error = self._error or f"the capture file could not be written ({_describe(err)})"
             self._ended.set()
@@ -678,9 +695,25 @@ def new_capture(path: str | os.PathLike, overwrite: bool, option: str = "--out",
     ``overwrite``); the writer goes on writing through its open handle, so a killed capture
     keeps what it flushed. A disk too full for the header leaves no file at all.
     """
+    writer = _open_new(path, overwrite, option, lambda tmp: CaptureWriter(tmp, **writer_args))
+    writer.path = Path(path)
+    return writer
+
+
+def new_raw_file(path: str | os.PathLike, overwrite: bool, option: str = "--raw"):
+    """An unbuffered binary file on ``path`` for a live link's raw bytes, made like
+    :func:`new_capture` (a temporary file beside it takes the name, never replacing an
+    existing file without ``overwrite``). ``capture --replay`` decodes it again."""
+    return _open_new(path, overwrite, option, lambda tmp: open(tmp, "wb", buffering=0))
+
+
+def _open_new(path: str | os.PathLike, overwrite: bool, option: str, opener):
+    """``opener(tmp)`` on a temporary file beside ``path`` that then takes the name
+    (:func:`coildrive.fileio.publish_new`); the returned handle (it has ``close()``) goes
+    on writing into ``path``. Nothing is left behind when either step fails."""
     tmp = temporary_beside(path)
     try:
-        writer = CaptureWriter(tmp, **writer_args)
+        handle = opener(tmp)
     except OSError as err:
         with contextlib.suppress(OSError):
             os.unlink(tmp)
@@ -688,12 +721,11 @@ def new_capture(path: str | os.PathLike, overwrite: bool, option: str = "--out",
     try:
         publish_new(tmp, path, overwrite=overwrite, option=option)
     except BaseException:
-        writer.close()
+        handle.close()
         with contextlib.suppress(OSError):
             os.unlink(tmp)
         raise
-    writer.path = Path(path)
-    return writer
+    return handle
 
 
 class NoFrames(InputError):

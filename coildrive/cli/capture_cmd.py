@@ -159,6 +159,7 @@ def capture_command(
     supply: Optional[str] = typer.Option(None, "--supply", help='Bus voltage during the capture, e.g. 24 or "24 V", for the header (default: the device\'s SUPPLY readings through the board\'s divider).'),
     coil_temp: Optional[str] = typer.Option(None, "--coil-temp", help='Coil temperature during the capture, e.g. 25 or "25 degC", for the header (default: the device\'s TEMPERATURE events).'),
     hint_after: Optional[str] = typer.Option(None, "--hint-after", help="s without a valid frame before the baud-rate / mode hint (default 3)."),
+    raw: Optional[Path] = typer.Option(None, "--raw", help="Also keep the link's raw bytes as they arrived, in this file (capture --replay decodes it again)."),
     overwrite: bool = typer.Option(False, "--overwrite", help="Replace an existing --out (and --csv) file; without it an existing file is never touched."),
 ) -> None:
     """Capture coil current from a board over the bench link into a capture file."""
@@ -181,6 +182,12 @@ def capture_command(
         raise InputError("--duration", "", "applies to a live capture, not to --replay (use --actuations)")
     if csv is not None:
         _check_out(csv, "--csv", overwrite)
+    if raw is not None:
+        if replay is not None:
+            raise InputError("--raw", "", "keeps a live link's bytes; --replay already reads such a file")
+        _check_out(raw, "--raw", overwrite)
+        if raw.resolve() in {target.resolve(), *([csv.resolve()] if csv is not None else [])}:
+            raise InputError("--raw", "", f"{str(raw)!r} is also the capture or CSV file: give another name")
     v = parse_quantity(supply, "voltage", "--supply") if supply is not None else None
     if v is not None and not v > 0:
         raise InputError("--supply", "", f"{supply!r} must be a voltage above zero")
@@ -208,7 +215,7 @@ def capture_command(
     old = {s: signal.signal(s, on_signal) for s in (signal.SIGINT, signal.SIGTERM)}
     try:
         link = DeviceLink(port, baud=line_rate, capture=target, meta=meta, text=text,
-                          stop_after_actuations=n_act, overwrite=overwrite, **point)
+                          stop_after_actuations=n_act, overwrite=overwrite, raw=raw, **point)
     except BaseException:
         for s, handler in old.items():
             signal.signal(s, handler)
@@ -252,12 +259,14 @@ def capture_command(
     csv_note, csv_error = _csv_after(target, csv, overwrite)
     if st.error is not None:
         status(f"coildrive: capture: {port}: {st.error} after {st.elapsed_s:.1f} s; kept "
-               f"{on_disk}, {st.complete_actuations} actuation(s) in {target}{csv_note}")
+               f"{on_disk}, {st.complete_actuations} actuation(s) in {target}{csv_note}"
+               f"{f', raw bytes {raw}' if raw is not None else ''}")
         _report_csv_error(csv_error)
         raise typer.Exit(1)
     why = (f"stopped by {caught[0]}" if caught else
            f"stopped after {st.complete_actuations} actuation(s)" if st.done else "duration reached")
-    status(f"captured {st.summary()} ({why}) -> {target}: {on_disk} on disk{csv_note}")
+    raw_note = f", raw bytes {raw}" if raw is not None else ""
+    status(f"captured {st.summary()} ({why}) -> {target}: {on_disk} on disk{csv_note}{raw_note}")
     _report_csv_error(csv_error, exit_now=True)
 
 

@@ -5,7 +5,9 @@ switch change (``state on`` / ``state off``; with ``--firmware``, each state of 
 driver: ``state peak``, ``state hold``, ``state fault (fault 1)``, ...) and per command
 (``command <OPCODE> <argument> -> <status>``); at the end, with line damage
 (``--drop-bytes``, ``--corrupt-bytes``), ``line: N frames sent, D damaged on the line
-(B bytes dropped, C changed)``; then ``stopped``.
+(B bytes dropped, C changed)``; then ``stopped``. ``--line-log FILE`` then lists those
+damaged frames (written when the emulator stops): what a host's lost-frame count can be
+checked against frame by frame.
 """
 
 from __future__ import annotations
@@ -50,6 +52,7 @@ def emulate_command(
     seed: int = typer.Option(0, "--seed", help="Seed of the noise and the line damage."),
     duration: Optional[str] = typer.Option(None, "--duration", help='Stop after this long, e.g. "10 s" (default: until SIGINT/SIGTERM).'),
     baud: Optional[int] = typer.Option(None, "--baud", help="Line rate in baud (default: the board file's link baud)."),
+    line_log: Optional[Path] = typer.Option(None, "--line-log", help="When it stops, write the frames the line damaged (--drop-bytes, --corrupt-bytes) to this CSV: frame number, sequence number, kind, delimiter damaged."),
     firmware: Optional[Path] = typer.Option(None, "--firmware", help="Run the generated C driver of this folder (firmware-driver --out) in the device, compiled for this computer."),
 ) -> None:
     """Serve a virtual bench device for DRIVE on a pseudo-terminal; print its path first."""
@@ -77,6 +80,11 @@ def emulate_command(
             corrupt_bytes=corrupt_bytes, seed=seed, baud=baud)
     except OptionError as err:
         raise InputError(_OPTION.get(err.name, err.name), "", err.message) from None
+    if line_log is not None:
+        folder = line_log.parent if str(line_log.parent) else Path(".")
+        if not folder.is_dir() or line_log.is_dir():
+            raise InputError("--line-log", "", f"{str(line_log)!r} cannot be written: expected a "
+                             "file name in an existing folder")
     d = design(load_drive(drive, board))
     try:
         if firmware is not None:
@@ -112,4 +120,15 @@ def emulate_command(
             # what a host's lost-frame count is checked against (benchmarks/bench_soak.py)
             status(f"line: {st.frames_sent} frames sent, {st.frames_damaged} damaged on the line "
                    f"({st.bytes_dropped} bytes dropped, {st.bytes_corrupted} changed)")
+    if line_log is not None:
+        write_line_log(line_log, device)
     status("stopped")
+
+
+def write_line_log(path: Path, device) -> None:
+    """``--line-log``: the frames the line damaged, as CSV (written atomically)."""
+    from ..fileio import write_atomic
+
+    rows = ["frame,seq,kind,delimiter_damaged"]
+    rows += [f"{f.frame},{f.seq},{f.kind},{int(f.delimiter_damaged)}" for f in device.damaged]
+    write_atomic(path, "\n".join(rows) + "\n")
