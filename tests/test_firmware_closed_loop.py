@@ -99,3 +99,34 @@ def test_supply_step_recovers_within_the_stated_settling_time(built):
     assert settle <= r.settling_time_s, f"settled after {settle * 1e3:.3g} ms, stated {r.settling_time_s * 1e3:.3g} ms"
     print(f"dip {peak * 1e3:.3g} mA ({peak / r.setpoint_a:.2%}), settled in {settle * 1e3:.3g} ms "
           f"(stated {r.settling_time_s * 1e3:.3g} ms)")
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("supply, coil_temp", [("20 V", "70 degC"), ("28 V", "-10 degC")])
+def test_emulate_firmware_capture_check_passes(tmp_path, monkeypatch, supply, coil_temp):
+    """As a user runs it, each a real subprocess over a real pseudo-terminal:
+    firmware-driver -> emulate --firmware -> capture -> check, at the hot low-supply and
+    the cold high-supply ends; check predicts the hold from the duty the loop settles at."""
+    import json
+
+    from conftest import EXAMPLES, run_cli
+    from test_bench_e2e import TIMEOUT, Emulator
+
+    require_tool("gcc")
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "cache"))
+    drive = EXAMPLES / "dosing-valve-closed-loop.toml"
+    r = run_cli("firmware-driver", str(drive), "--out", str(tmp_path / "fw"))
+    assert r.returncode == 0, r.stderr
+    emu = Emulator(drive, "--firmware", str(tmp_path / "fw"), "--noise", "1", "--seed", "3",
+                   "--supply", supply, "--coil-temp", coil_temp)
+    try:
+        r = run_cli("capture", emu.path, "--drive", str(drive), "--out", str(tmp_path / "c.cdcap"),
+                    "--actuations", "2", timeout=TIMEOUT)
+    finally:
+        emu.stop()
+    assert r.returncode == 0, r.stderr
+    r = run_cli("check", str(tmp_path / "c.cdcap"), str(drive), "--json")
+    doc = json.loads(r.stdout)
+    assert r.returncode == 0, {i["name"]: (i["status"], i["detail"]) for i in doc["items"]}
+    hold = next(i for i in doc["items"] if i["name"] == "hold_mean")
+    assert hold["status"] == "pass"
