@@ -26,9 +26,11 @@ def summary_table(d: Design) -> Table:
         ("hold frequency", format_si(h.frequency_hz, "Hz", 6),
          f"prescaler {tm.prescaler}, period {tm.period_ticks} counts ({tm.frequency_error:+.3%})"),
         ("hold regulation", h.regulation.replace("_", " "), _regulation_how(d)),
-        ("hold duty", f"{h.duty:.4f}", f"compare {tm.compare_ticks}; 1 count = {h.current_step_a * 1e3:.3g} mA"
-         + ("; the table's first entry (safe at every supply)" if h.regulation == "supply_table" else "")
-         + ("; the loop's largest, where each hold starts" if h.regulation == "closed_loop" else "")),
+        ("hold duty", f"{h.duty:.4f}", (f"compare {tm.compare_ticks}; 1 count = {h.current_step_a * 1e3:.3g} mA"
+                                        if h.regulation != "closed_loop" else
+                                        f"the largest the loop settles at; each hold starts at compare "
+                                        f"{tm.compare_ticks}")
+         + ("; the table's first entry (safe at every supply)" if h.regulation == "supply_table" else "")),
         ("hold mean current", f"{h.min_mean_current_a:.4g} .. {h.max_mean_current_a:.4g} A",
          f"min at {h.min_corner}; max at {h.max_corner}"),
         ("hold ripple (p-p)", f"<= {h.ripple_a * 1e3:.4g} mA",
