@@ -45,9 +45,10 @@ ENERGY_DERATING = 0.5
 #: current, so 1.1 x the current is about 1.2 x the force).
 PULL_IN_CURRENT_MARGIN = 1.1
 #: What the firmware does in a voltage-mode hold (``[hold] regulation``): one fixed
-#: compare, or the compare looked up against the measured supply (``current`` is what
-#: a current-mode hold reports).
-REGULATIONS = ("fixed", "supply_table")
+#: compare, the compare looked up against the measured supply, or a PI loop on the
+#: sampled current that sets the compare every PWM period (``current`` is what a
+#: current-mode hold reports).
+REGULATIONS = ("fixed", "supply_table", "closed_loop")
 #: Tolerance keys of the freewheel elements (fractions, 0 = exact).
 _FREEWHEEL_TOLERANCES = ("diode_drop_tolerance", "zener_voltage_tolerance", "clamp_voltage_tolerance")
 #: Single-pulse energy ratings of the freewheel elements (J, 0 = not given).

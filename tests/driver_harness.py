@@ -18,7 +18,7 @@ from conftest import ROOT, require_tool
 
 PROGRAM = ROOT / "tests" / "data" / "driver_target.c"
 STRICT = ["-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic", "-Wconversion", "-Wsign-conversion"]
-OPS = {"on": 1, "off": 2, "clear": 3, "run": 4, "supply": 5, "mode": 6, "full": 7, "dip": 8}
+OPS = {"on": 1, "off": 2, "clear": 3, "run": 4, "supply": 5, "mode": 6, "full": 7, "dip": 8, "level": 9}
 MODES = {"coil": 0, "open": 1, "short": 2}
 _ANSI = re.compile(r"\x1b\[[0-9;]*m")
 
@@ -139,12 +139,12 @@ def budget_script(d) -> list[tuple[str, int]]:
     return script
 
 
-#: Drive shapes whose handlers the budget covers: every bundled example, and the demo
-#: with each current-mode control.
+#: Drive shapes whose handlers the budget covers: every bundled example (the closed-loop
+#: one included), and the demo with each current-mode control.
 def budget_shapes() -> list[tuple[str, object]]:
     shapes = [(name, example_design(name)) for name in
               ("demo-valve", "door-latch-24v", "locker-latch-12v", "pinch-valve-48v", "relay-12v",
-               "wash-valve-split-24v")]
+               "wash-valve-split-24v", "dosing-valve-closed-loop")]
     for control in ("hysteretic", "off_time"):
         shapes.append((f"demo-valve {control}", example_design(
             "demo-valve", ('frequency = "25 kHz"', f'frequency = "25 kHz"\nmode = "current"\ncontrol = "{control}"'))))

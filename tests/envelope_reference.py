@@ -268,14 +268,15 @@ class Firmware:
     ``tests/data/envelope_firmware.c``): regulation, timer, over-current code, and the
     hold compare and peak ticks for each supply-sense code asked for."""
 
-    regulation: str          # "fixed", "supply_table" or "current"
+    regulation: str          # "fixed", "supply_table", "current" or "closed_loop"
     period: int              # timer counts per PWM period
     prescaler: int
     clock: float             # Hz, timer input clock
     over_current_code: int
     tick_rate: float         # Hz, the scheduler's (board file)
-    compare: dict[int, int]  # supply code -> compare counts (-1: current mode)
+    compare: dict[int, int]  # supply code -> compare counts (-1: current mode, closed loop)
     peak_ticks: dict[int, int]
+    setpoint_code: int | None = None   # closed loop: the current-sense code it holds
 
     @property
     def period_s(self) -> float:
@@ -328,7 +329,8 @@ def build_firmware(drive: Drive, drive_path: Path, folder: Path, codes) -> Firmw
     return Firmware(regulation=head["regulation"], period=int(head["period"]),
                     prescaler=int(head["prescaler"]), clock=float(head["clock"]),
                     over_current_code=int(head["over_current_code"]),
-                    tick_rate=drive.board.tick.rate, compare=compare, peak_ticks=ticks)
+                    tick_rate=drive.board.tick.rate, compare=compare, peak_ticks=ticks,
+                    setpoint_code=int(head["setpoint_code"]) if "setpoint_code" in head else None)
 
 
 def step_edges(drive: Drive, fw: Firmware) -> list[tuple[float, float]]:
@@ -363,6 +365,25 @@ def hottest_coil(drive: Drive, fw: Firmware, supplies, r_factor: float, l_factor
                                  fw.on_time(code), fw.period_s)
             best = max(best, (t, v, l), key=lambda x: x[0])
     return best
+
+
+def regulated_coil_temperature(drive: Drive, fw: Firmware, r_factor: float) -> float:
+    """Hottest settled coil (degC) of this resistance corner under a closed-loop hold, at
+    the highest ambient: the loop holds the sampled current, at most two codes above the
+    header's set-point as a channel reading low reads it (one code for the converter's
+    truncation, one more to cover the ripple's share of the RMS); as DC,
+    ``T = T_amb + R_th I^2 R(T)`` with IEC 60028 copper, solved in closed form:
+    ``R(T) = R_20 (1 + alpha (T - 20))`` makes it linear in ``T``."""
+    adc, sense = drive.board.adc, drive.board.sense
+    low = (1 - sense.resistance_tolerance) * (1 - sense.gain_tolerance)
+    amps = (fw.setpoint_code + 2) * adc.reference / 2 ** adc.bits / (sense.resistance * sense.gain) / low
+    c = drive.coil
+    r20 = copper_resistance(c.resistance, c.reference_temp, 20.0) * r_factor
+    k = drive.thermal.resistance * amps ** 2 * r20
+    a = IEC60028_ALPHA_20
+    if k * a >= 1.0:
+        return drive.thermal.max_coil_temp + 1000.0
+    return (drive.ambient.max + k * (1.0 - 20.0 * a)) / (1.0 - k * a)
 
 
 def envelope_supplies(drive: Drive, fw: Firmware, count: int) -> list[float]:

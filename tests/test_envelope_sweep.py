@@ -99,10 +99,12 @@ def sweep(path: Path) -> Sweep:
     coil = drive.coil
     r_factors = (1 - coil.resistance_tolerance, 1 + coil.resistance_tolerance)
     l_factors = (1 - coil.inductance_tolerance, 1 + coil.inductance_tolerance)
-    current_mode = fw.regulation == "current" or drive.hold.mode == "current"
+    current_mode = fw.regulation in ("current", "closed_loop") or drive.hold.mode == "current"
     if current_mode:
-        out.skipped["hold"] = ("current-mode hold: the firmware regulates the current from "
-                               "the sense ADC, which this voltage-mode simulator does not model")
+        out.skipped["hold"] = (f"{fw.regulation.replace('_', '-')} hold: the firmware regulates the "
+                               "current from the sense ADC, which this voltage-mode simulator does "
+                               "not model (the closed loop runs against the coil model at every "
+                               "corner in tests/test_firmware_closed_loop.py)")
     if drive.armature is not None:
         out.skipped["pull_in"] = ("[armature]: the pull-in is the moving armature seating, "
                                   "which needs the motional model (the lead's), not a plain RL rise")
@@ -110,7 +112,10 @@ def sweep(path: Path) -> Sweep:
     limit_v = drive.switch.max_voltage * drive.switch.derating
     oc = fw.over_current_code
     for r in r_factors:
-        if current_mode:
+        if fw.regulation == "closed_loop":
+            hot = ref.regulated_coil_temperature(drive, fw, r)
+            out.hot[r] = (hot, None, None)
+        elif current_mode:
             hot = drive.thermal.max_coil_temp  # no duty to heat with here: the class limit
             out.hot[r] = (hot, None, None)
         else:

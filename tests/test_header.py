@@ -106,7 +106,7 @@ def test_header_compiles_and_matches_design(tmp_path, example, board):
         assert v["hold_code"] == d.adc.hold_code
         assert v["over_current_code"] == d.adc.over_current_code
         assert v["open_load_code"] == d.adc.open_load_code
-        assert v["regulation"] == {"fixed": 0, "supply_table": 1, "current": 2}[d.hold.regulation]
+        assert v["regulation"] == {"fixed": 0, "supply_table": 1, "current": 2, "closed_loop": 3}[d.hold.regulation]
         assert v["table"] == list(zip(d.duty_table.adc_codes, d.duty_table.compare_ticks))
         if d.duty_table.adc_codes:
             assert v["lookup_low"] == d.duty_table.compare_ticks[0], "below the table: highest duty"

@@ -251,7 +251,7 @@ def predict(design, point: OperatingPoint, hold_time: float) -> tuple[dict, obje
     cold = dataclasses.replace(drive, thermal=dataclasses.replace(drive.thermal, resistance=0.0))
     from ..design import firmware_setting
 
-    duty, peak = firmware_setting(design, point.supply_v)
+    duty, peak = firmware_setting(design, point.supply_v, point.coil_temp_c)
     freq = design.hold.frequency_hz
     res = evaluate(cold, np.array([point.supply_v]), np.array([point.coil_temp_c]), 1.0, 1.0,
                    duty, freq, peak)
@@ -396,7 +396,7 @@ def check_capture(capture: Capture, design, tolerances: Tolerances | None = None
         notes.append(f"the capture says board {meta.board!r}, the drive uses {board.name!r}")
     from ..design import firmware_setting
 
-    duty_fw, peak_fw = firmware_setting(design, point.supply_v)  # what its firmware runs there
+    duty_fw, peak_fw = firmware_setting(design, point.supply_v, point.coil_temp_c)  # what its firmware runs there
     for key, mine in (("peak_time_s", peak_fw), ("hold_duty", duty_fw),
                       ("hold_frequency_hz", design.hold.frequency_hz)):
         theirs = getattr(meta, key)

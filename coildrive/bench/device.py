@@ -309,7 +309,7 @@ class VirtualDevice(LineOutput):
         self.supply, self.coil_temp = operating_point(drive, options.supply, options.coil_temp)
         from ..design import firmware_setting  # the compare and peak its firmware runs at this supply
 
-        duty, peak = firmware_setting(design, self.supply)
+        duty, peak = firmware_setting(design, self.supply, self.coil_temp)
         self.settings = Settings(round(peak * self.tick_rate), design.timer.prescaler,
                                  design.timer.period_ticks, round(duty * design.timer.period_ticks))
         rate = Fraction(self.sample_rate).limit_denominator(2**32 - 1)

@@ -83,9 +83,15 @@ class FirmwareDevice(LineOutput):
     library : path of the shared library (:func:`~coildrive.codegen.host_build.build_firmware`).
     options : :class:`~coildrive.bench.device.DeviceOptions` (supply, coil temperature,
         hold time, period, first actuation, coil scales, fault, noise, seed, baud).
+    trace : keep :attr:`trace`, one ``(start s, mean coil current A, driver state)`` per PWM
+        period stepped (not the idle stretches), for tests of the hold's regulation.
+
+    :meth:`supply_step` changes the bus voltage from a given device time on (a sag or a
+    surge the regulation has to answer).
     """
 
-    def __init__(self, design, library: Path, options: DeviceOptions | None = None):
+    def __init__(self, design, library: Path, options: DeviceOptions | None = None,
+                 trace: bool = False):
         self.options = o = options or DeviceOptions()
         self.design = design
         drive = design.drive
@@ -96,8 +102,11 @@ class FirmwareDevice(LineOutput):
         self.supply, self.coil_temp = operating_point(drive, o.supply, o.coil_temp)
         faulty, rf, lf = faulty_drive(drive, o.fault)
         r_scale, l_scale = o.resistance_scale * rf, o.inductance_scale * lf
+        self._coil = (faulty, r_scale, l_scale)
         self._loops = {path: loop(faulty, self.supply, self.coil_temp, r_scale, l_scale, path)
                        for path in ("hold", "release")}
+        self._supply_steps: list[tuple[float, float]] = []
+        self.trace: list[tuple[float, float, int]] | None = [] if trace else None
         self._flight = self._pull_in_flight(faulty, design, l_scale)
         self._flight_t0: float | None = None
         self.sample_rate = float(board.adc.sample_rate)
@@ -138,6 +147,23 @@ class FirmwareDevice(LineOutput):
         #: s before an actuation at which a fault is cleared: the release lockout, and a tick
         self._clear_lead = (design.release.lockout_ticks + 2) / self.tick_rate
         self._take_frames()
+
+    def supply_step(self, at: float, supply: float) -> None:
+        """From device time ``at`` s on, the bus is at ``supply`` V: the coil model and the
+        supply reading change at the first PWM period that starts at or after ``at`` (the
+        armature's pull-in run keeps the supply it was made for)."""
+        self._supply_steps = sorted(self._supply_steps + [(float(at), float(supply))])
+
+    def _apply_supply_steps(self, t: float) -> None:
+        b = self.drive.board
+        while self._supply_steps and self._supply_steps[0][0] <= t:
+            _, self.supply = self._supply_steps.pop(0)
+            faulty, r_scale, l_scale = self._coil
+            self._loops = {path: loop(faulty, self.supply, self.coil_temp, r_scale, l_scale, path)
+                           for path in ("hold", "release")}
+            self._supply_code = int(min(max(math.floor(self.supply / b.supply_sense.divider
+                                                       / b.adc.reference * 2**b.adc.bits), 0), self._full))
+            self._log.append(LogEntry(t, f"supply {self.supply:.4g} V"))
 
     @staticmethod
     def check_design(design) -> None:
@@ -290,6 +316,7 @@ class FirmwareDevice(LineOutput):
     def _step(self) -> float:
         """One PWM period (or, idle, a run of them up to the next command); returns its s."""
         t0, T = self._t, self.pwm_period
+        self._apply_supply_steps(t0)
         self._commands(t0)
         if self._idle():
             # nothing moves: skip to the next command (ticks and conversions do nothing in OFF)
@@ -350,6 +377,9 @@ class FirmwareDevice(LineOutput):
         for tt in [x for x in ticks if x >= s]:
             self._do_tick(tt)
         self._i = float(current(t0 + T))
+        if self.trace is not None:      # the period's mean: midpoint rule, 64 points
+            x = t0 + (np.arange(64) + 0.5) * (T / 64)
+            self.trace.append((t0, float(np.mean(current(x))), self._state))
         if on_end < t0 + T or not full_on:
             self._flight_t0 = None           # seated (or cut short): the RL model of the seated coil
         self._t = t0 + T

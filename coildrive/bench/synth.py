@@ -275,6 +275,6 @@ def synth_design_capture(design, **kwargs) -> Capture:
     entry where it looks the duty up); keyword arguments as there."""
     from ..design import firmware_setting
 
-    supply, _ = operating_point(design.drive, kwargs.get("supply"), kwargs.get("coil_temp"))
-    duty, peak = firmware_setting(design, supply)
+    supply, temp = operating_point(design.drive, kwargs.get("supply"), kwargs.get("coil_temp"))
+    duty, peak = firmware_setting(design, supply, temp)
     return synth_capture(design.drive, peak, duty, design.hold.frequency_hz, **kwargs)

@@ -113,7 +113,7 @@ def simulate_command(
                   label=f"{v:g} V, coil {t:g} degC, R x{r_factor:g}, L x{l_factor:g}")
     write_atomic(csv, w.to_csv())
     from ..design import firmware_setting
-    duty, peak = firmware_setting(d, v)
+    duty, peak = firmware_setting(d, v, t)
     status(f"wrote {csv}: {len(w.time)} samples, peak {peak * 1e3:.4g} ms, "
            f"hold duty {duty:.4f} ({d.hold.regulation}) at {d.hold.frequency_hz:.6g} Hz, off at "
            f"{w.events['off'] * 1e3:.4g} ms, zero at {w.events['zero'] * 1e3:.4g} ms")

@@ -167,6 +167,10 @@ def _live(drive: Path, board: Optional[str], port: str, as_json: bool, header: O
     if d.hold.mode != "voltage":
         raise InputError(d.source, "hold.mode", "live tuning steps the duty of a voltage-mode hold; for "
                          'mode = "current" the thresholds come from coildrive design')
+    if d.hold.regulation == "closed_loop":
+        raise InputError(d.source, "hold.regulation", "live tuning steps a fixed compare; a closed-loop "
+                         "hold sets its own compare every PWM period: set hold.current and run "
+                         "coildrive design")
     des = design(d)
     if not des.ok:
         # a failing design (switch voltage, coil temperature, ...) must not drive hardware

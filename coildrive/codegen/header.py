@@ -109,23 +109,29 @@ class HeaderView:
         if d.peak_table is not None:
             self.constants.append(Constant(f"{m}_PEAK_TABLE_LEN", len(d.peak_table.adc_codes),
                                            "entries in the peak table"))
+        if d.hold.regulation == "closed_loop":
+            at = next(i for i, c in enumerate(self.constants) if c.name == f"{m}_REGULATION_CURRENT")
+            self.constants.insert(at + 1, Constant(f"{m}_REGULATION_CLOSED_LOOP", 3,
+                                                   "hold regulation: PI loop on the sampled current"))
         self.regulation = {"fixed": "FIXED", "supply_table": "SUPPLY_TABLE",
-                           "current": "CURRENT"}[d.hold.regulation]
+                           "current": "CURRENT", "closed_loop": "CLOSED_LOOP"}[d.hold.regulation]
         self.peak_table = ([] if d.peak_table is None else
                            list(zip(d.peak_table.adc_codes, d.peak_table.peak_ticks, d.peak_table.supply_v)))
         self.peak_type = c_uint_type(max([p[1] for p in self.peak_table], default=1))
         self.regulation_words = {
             "fixed": f"fixed duty {d.hold.duty:.4f}",
             "supply_table": f"duty table against the supply (first entry {d.hold.duty:.4f})",
-            "current": "current mode (fixed-duty fallback below)"}[d.hold.regulation]
+            "current": "current mode (fixed-duty fallback below)",
+            "closed_loop": "closed-loop PI on the sampled current"}[d.hold.regulation]
         if d.armature is not None:
             self.constants += _armature_constants(d, m)
         self.bypass_constants = _bypass_constants(d, m)
         self.table = list(zip(d.duty_table.adc_codes, d.duty_table.compare_ticks, d.duty_table.supply_v))
         self.constants = _current_relabel_fallback(d, m, self.constants)
         self.current_constants = _current_header_constants(d, m)
-        self.current_checks = _current_header_checks(d, m)
-        self.current_summary = _current_header_summary(d)
+        self.current_checks = _current_header_checks(d, m) + _loop_header_checks(d, m)
+        self.current_summary = _current_header_summary(d) + _loop_header_summary(d)
+        self.loop_constants = _loop_header_constants(d, m)
 
     def value(self, suffix: str) -> int:
         return next(c.value for c in self.constants if c.name == f"{self.macro}_{suffix}")
@@ -237,6 +243,58 @@ def _current_header_checks(design: Design, macro: str) -> list[tuple[str, str]]:
              "off time does not fit the timer counter"),
             (f"{m}_HOLD_OFF_PRESCALER < 1 || {m}_HOLD_OFF_PRESCALER > {m}_TIMER_PRESCALER_MAX",
              "off-time prescaler outside the timer's range")]
+
+
+# --------------------------------------------------------------------------- closed loop
+def _loop_header_constants(design: Design, macro: str) -> list[Constant]:
+    """The closed-loop hold's set-point, fixed-point gains and limits (empty otherwise)."""
+    r = design.hold.closed_loop
+    if r is None:
+        return []
+    m = macro
+    return [
+        Constant(f"{m}_LOOP_SETPOINT_CODE", r.setpoint_code,
+                 f"current-sense code the loop holds ({r.setpoint_a:.4g} A as read)"),
+        Constant(f"{m}_LOOP_SAMPLE_MID_ON", int(r.sample_point == "middle of the on-time"),
+                 f"1: convert in the middle of the on-time; 0: of the period ({r.sample_point})"),
+        Constant(f"{m}_LOOP_KP", r.kp_q, f"proportional gain x 2^SHIFT ({r.kp:.5g} counts per code)"),
+        Constant(f"{m}_LOOP_KI", r.ki_q, f"integral gain x 2^SHIFT ({r.ki:.5g} counts per code per period)"),
+        Constant(f"{m}_LOOP_SHIFT", r.gain_shift, "fixed-point shift of the gains and the integrator"),
+        Constant(f"{m}_LOOP_MIN_COMPARE", r.min_compare,
+                 "least on-time counts" + (" (the mid-on-time sample needs an on-time)"
+                                           if r.min_compare else "")),
+        Constant(f"{m}_LOOP_MAX_COMPARE", r.max_compare,
+                 f"most on-time counts ({r.max_duty_limit:.0%} duty: headroom for the loop)"),
+        Constant(f"{m}_LOOP_INTEGRATOR_MIN", r.integrator_min, "integrator floor (MIN_COMPARE x 2^SHIFT)"),
+        Constant(f"{m}_LOOP_INTEGRATOR_MAX", r.integrator_max, "integrator ceiling (MAX_COMPARE x 2^SHIFT)"),
+        Constant(f"{m}_LOOP_PRELOAD_COMPARE", r.preload_compare,
+                 "the integrator starts each hold here: the most duty any corner settles at"),
+    ]
+
+
+def _loop_header_summary(design: Design) -> list[str]:
+    r = design.hold.closed_loop
+    if r is None:
+        return []
+    return [f"loop      set-point {r.setpoint_code} codes, sampled in the {r.sample_point}; crossover "
+            f"{r.crossover_min_hz:.4g}..{r.crossover_max_hz:.4g} Hz, phase margin >= "
+            f"{r.phase_margin_deg:.1f} deg, gain margin >= {r.gain_margin_db:.1f} dB, settles in "
+            f"{r.settling_time_s * 1e3:.3g} ms; duty {r.min_duty:.4f}..{r.max_duty:.4f} over the corners"]
+
+
+def _loop_header_checks(design: Design, macro: str) -> list[tuple[str, str]]:
+    if design.hold.closed_loop is None:
+        return []
+    m = macro
+    return [(f"{m}_LOOP_SETPOINT_CODE >= {m}_ADC_OVER_CURRENT_CODE || {m}_LOOP_SETPOINT_CODE < 1",
+             "loop set-point outside 1 .. over-current"),
+            (f"{m}_LOOP_MIN_COMPARE > {m}_LOOP_MAX_COMPARE || {m}_LOOP_MAX_COMPARE > {m}_TIMER_PERIOD_COUNTS",
+             "loop compare limits out of order"),
+            (f"{m}_LOOP_PRELOAD_COMPARE < {m}_LOOP_MIN_COMPARE || {m}_LOOP_PRELOAD_COMPARE > {m}_LOOP_MAX_COMPARE",
+             "loop preload outside its limits"),
+            (f"{m}_LOOP_INTEGRATOR_MAX + {m}_LOOP_KP * ({m}_ADC_MAX_CODE + 1UL) > 2147483647UL || "
+             f"{m}_LOOP_INTEGRATOR_MAX + {m}_LOOP_KI * ({m}_ADC_MAX_CODE + 1UL) > 2147483647UL",
+             "loop arithmetic would overflow 32 bits")]
 
 
 def generate_header(design: Design, prefix: str = "COIL") -> str:

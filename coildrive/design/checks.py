@@ -124,6 +124,8 @@ def _regulation_words(hold: HoldResult) -> str:
         return f"supply table (fixed fallback compare {hold.compare_ticks}, duty {hold.duty:.4f})"
     if hold.regulation == "current":
         return "current-mode hold"
+    if hold.regulation == "closed_loop":
+        return f"closed-loop hold at set-point code {hold.closed_loop.setpoint_code}"
     return f"fixed duty {hold.duty:.4f}"
 
 

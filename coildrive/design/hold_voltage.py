@@ -132,28 +132,9 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     checks = base_checks(drive, env, res_low, pull_in, hold, release, timer_result, thresholds, timer,
                          plan_reachable=plan.reachable, high=res)
     split = _split_result(drive, timer, int(np.min(plan.compare_low))) if split_decay(drive) else None
-    arm = None
-    if res_low.armature is not None:
-        arm = armature_result(drive, env, res_low)
-        checks += armature_checks(drive, env, res_low, arm, release)
-    checks += loss_checks(drive, hold, loss, env, split)
-    checks += energy_checks(drive, release)
-    notes = cautions(drive, hold, release)
-    if arm is not None:
-        notes.append(
-            "Pull-in and release moments come from the mechanical figures in [armature]; confirm "
-            "the current dip and the release on the bench before relying on the margins of a "
-            "safety-relevant actuator (an armature that fails to release keeps the load engaged).")
-    notes += loss_cautions(drive, hold, release, split)
-    peak_time = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate
-    # the plot shows the hold for twice the peak, at least 20 and at most 2000 PWM periods
-    hold_time = min(max(2.0 * peak_time, 20.0 / f_hold), 2000.0 / f_hold)
-    k_w = pk.k_pull
-    if pk.ticks is None:  # not reached: draw where the steady current is lowest
-        k_w = int(np.argmin(np.asarray(res_low.loop.v_on / res_low.loop.r_on, float)))
-    what = "worst pull-in: " if pk.ticks is not None else "pull-in not reached: "
-    points = (plot_point(drive, "nominal", "nominal", nom, 0, hold_time),
-              plot_point(drive, "worst", what + env.label(k_w), res_low, k_w, hold_time))
+    arm, more, notes = closing_checks(drive, env, res_low, hold, loss, release, split)
+    checks += more
+    points = plot_points(drive, pk, env, nom, res_low, f_hold)
     out = Design(drive=drive, pull_in=pull_in, hold=hold, release=release, timer=timer_result,
                  adc=thresholds, duty_table=table, corners=corners, nominal=nominal,
                  checks=checks, cautions=notes, monte_carlo=None,
@@ -170,6 +151,42 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
         out = dataclasses.replace(out, monte_carlo=monte_carlo(drive, duty_at, f_hold, peak_at,
                                                                samples, seed))
     return out
+
+
+def closing_checks(drive: Drive, env, res_low: PointResults, hold: HoldResult, loss: HoldLosses,
+                   release, split) -> tuple:
+    """``(armature result or None, checks, cautions)`` every PWM hold ends its design with:
+    the armature's figures and checks, the loss and energy checks, and the cautions."""
+    arm = None
+    checks = []
+    if res_low.armature is not None:
+        arm = armature_result(drive, env, res_low)
+        checks += armature_checks(drive, env, res_low, arm, release)
+    checks += loss_checks(drive, hold, loss, env, split)
+    checks += energy_checks(drive, release)
+    notes = cautions(drive, hold, release)
+    if arm is not None:
+        notes.append(
+            "Pull-in and release moments come from the mechanical figures in [armature]; confirm "
+            "the current dip and the release on the bench before relying on the margins of a "
+            "safety-relevant actuator (an armature that fails to release keeps the load engaged).")
+    notes += loss_cautions(drive, hold, release, split)
+    return arm, checks, notes
+
+
+def plot_points(drive: Drive, pk, env, nom: PointResults, res_low: PointResults,
+                frequency: float) -> tuple:
+    """The actuations the plot draws: the nominal point and the worst pull-in (where it is
+    not reached, the corner with the lowest steady current), holding for twice the peak,
+    at least 20 and at most 2000 PWM periods."""
+    peak_time = 0.0 if pk.ticks is None else pk.ticks / drive.board.tick.rate
+    hold_time = min(max(2.0 * peak_time, 20.0 / frequency), 2000.0 / frequency)
+    k_w = pk.k_pull
+    if pk.ticks is None:  # not reached: draw where the steady current is lowest
+        k_w = int(np.argmin(np.asarray(res_low.loop.v_on / res_low.loop.r_on, float)))
+    what = "worst pull-in: " if pk.ticks is not None else "pull-in not reached: "
+    return (plot_point(drive, "nominal", "nominal", nom, 0, hold_time),
+            plot_point(drive, "worst", what + env.label(k_w), res_low, k_w, hold_time))
 
 
 def _nominal_duty(drive: Drive, plan: HoldPlan, period: int) -> float:

@@ -9,8 +9,9 @@ label="", strict=True) -> Waveform``
     one actuation of that design at one operating point, as the firmware runs it
     (``simulate`` and the plot draw it).
 
-:data:`STRATEGIES` maps ``[hold] mode`` to its module; the design picks one, from the
-file, and never branches on it again. A further way of holding is a new module here and
+:data:`STRATEGIES` maps ``[hold] mode`` to its module (a voltage-mode hold whose
+``regulation`` is ``"closed_loop"`` has a module of its own); the design picks one, from
+the file, and never branches on it again. A further way of holding is a new module here and
 one entry in :data:`STRATEGIES`.
 """
 
@@ -19,7 +20,7 @@ from __future__ import annotations
 from typing import Protocol
 
 from ..config import Drive
-from . import hold_current, hold_voltage
+from . import hold_closed_loop, hold_current, hold_voltage
 from .result import Design
 
 
@@ -33,10 +34,15 @@ class HoldStrategy(Protocol):
                   label: str = "", strict: bool = True): ...
 
 
-#: ``[hold] mode`` -> the module that designs and simulates that hold.
-STRATEGIES: dict[str, HoldStrategy] = {"voltage": hold_voltage, "current": hold_current}
+#: ``[hold] mode`` (or ``regulation = "closed_loop"``) -> the module that designs and
+#: simulates that hold.
+STRATEGIES: dict[str, HoldStrategy] = {"voltage": hold_voltage, "current": hold_current,
+                                       "closed_loop": hold_closed_loop}
 
 
 def strategy_for(drive: Drive) -> HoldStrategy:
-    """The hold strategy of ``drive`` (its ``[hold] mode``; config has checked the name)."""
+    """The hold strategy of ``drive`` (its ``[hold] mode``, or the closed loop; config has
+    checked the names)."""
+    if drive.hold.regulation == "closed_loop":
+        return STRATEGIES["closed_loop"]
     return STRATEGIES[drive.hold.mode]

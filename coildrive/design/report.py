@@ -26,7 +26,10 @@ def summary_table(d: Design) -> Table:
         ("hold frequency", format_si(h.frequency_hz, "Hz", 6),
          f"prescaler {tm.prescaler}, period {tm.period_ticks} counts ({tm.frequency_error:+.3%})"),
         ("hold regulation", h.regulation.replace("_", " "), _regulation_how(d)),
-        ("hold duty", f"{h.duty:.4f}", f"compare {tm.compare_ticks}; 1 count = {h.current_step_a * 1e3:.3g} mA"
+        ("hold duty", f"{h.duty:.4f}", (f"compare {tm.compare_ticks}; 1 count = {h.current_step_a * 1e3:.3g} mA"
+                                        if h.regulation != "closed_loop" else
+                                        f"the largest the loop settles at; each hold starts at compare "
+                                        f"{tm.compare_ticks}")
          + ("; the table's first entry (safe at every supply)" if h.regulation == "supply_table" else "")),
         ("hold mean current", f"{h.min_mean_current_a:.4g} .. {h.max_mean_current_a:.4g} A",
          f"min at {h.min_corner}; max at {h.max_corner}"),
@@ -91,6 +94,9 @@ def _regulation_how(d: Design) -> str:
                 "each at the lowest supply that reads its code")
     if h.regulation == "current":
         return "current-mode thresholds (table below)"
+    if h.regulation == "closed_loop":
+        return (f"PI loop on the current sampled in the {h.closed_loop.sample_point}, once a PWM "
+                "period (table below)")
     return "one compare value at every supply"
 
 
@@ -213,6 +219,8 @@ def print_design(d: Design, console: Console | None = None) -> None:
     console.print(summary_table(d))
     if d.hold.current_mode is not None:
         console.print(current_mode_table(d))
+    if d.hold.closed_loop is not None:
+        console.print(closed_loop_table(d))
     console.print(checks_table(d))
     if d.monte_carlo is not None:
         console.print(monte_carlo_table(d.monte_carlo))
@@ -242,4 +250,34 @@ def current_mode_table(design: Design) -> Table:
     t.add_row("switch-on fraction", f"{r.min_duty:.3f} .. {r.max_duty:.3f}", "over the corners")
     t.add_row("sense", r.sense_position, f"delay {r.sense_delay_s * 1e6:.3g} us; one code "
               f"{r.code_current_a * 1e3:.4g} mA")
+    return t
+
+
+def closed_loop_table(design: Design) -> Table:
+    """rich table of the closed-loop hold: gains, margins and quantisation limits."""
+    r = design.hold.closed_loop
+    t = Table(title="closed-loop hold (PI on the sampled current)")
+    t.add_column("figure")
+    t.add_column("value", justify="right")
+    t.add_column("where / how")
+    rows = [
+        ("set-point", f"{r.setpoint_code} codes", f"{r.setpoint_a:.4g} A as the channel reads it; "
+         f"sampled in the {r.sample_point}"),
+        ("gains", f"Kp {r.kp:.4g}, Ki {r.ki:.4g}", f"counts per code (Ki per period); in the driver "
+         f"{r.kp_q} and {r.ki_q} / 2^{r.gain_shift} (rounding {r.kp_rounding:.2%}, {r.ki_rounding:.2%})"),
+        ("crossover", f"{r.crossover_min_hz:.4g} .. {r.crossover_max_hz:.4g} Hz",
+         f"designed {r.bandwidth_hz:.4g} Hz at {r.design_corner}; lowest at {r.crossover_min_corner}"),
+        ("phase margin", f"{r.phase_margin_deg:.1f} deg", f"lowest, at {r.phase_margin_corner}"),
+        ("gain margin", f"{r.gain_margin_db:.1f} dB", f"lowest, at {r.gain_margin_corner}"),
+        ("settling time", _ms(r.settling_time_s),
+         f"to 5 % of a supply step's deviation, slowest at {r.settling_corner}"),
+        ("loop duty", f"{r.min_duty:.4f} .. {r.max_duty:.4f}",
+         f"limits {r.min_compare}..{r.max_compare} counts; {r.saturated_corners} of {r.corners} "
+         "corners saturated"),
+        ("quantisation", f"{r.smallest_step_a * 1e3:.3g} mA",
+         f"smallest current step: one code {r.current_lsb_a * 1e3:.3g} mA, one compare count "
+         f"{r.duty_step_current_a * 1e3:.3g} mA"),
+    ]
+    for row in rows:
+        t.add_row(*(escape(c) for c in row))
     return t

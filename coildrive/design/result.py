@@ -46,6 +46,73 @@ class Thresholds:
 
 
 @dataclass(frozen=True)
+class ClosedLoopResult:
+    """The closed-loop average-current hold (``[hold] regulation = "closed_loop"``): an
+    integer PI loop once a PWM period on the current sample (see
+    :mod:`coildrive.design.hold_closed_loop` and :mod:`coildrive.design.loop_gains`).
+
+    ``sample_point``: where in the period the current is converted. The set-point is an
+    ADC code of the current-sense channel (``setpoint_a`` A as the channel reads it).
+    Gains in timer counts of compare per ADC code (``ki`` per PWM period), as designed
+    (``kp``, ``ki``) and as the driver's integers (``kp_q / 2^gain_shift``...), with their
+    relative rounding. The loop's output stays within ``min_compare .. max_compare``
+    counts; the integrator within ``integrator_min .. integrator_max`` (counts x
+    ``2^gain_shift``) and starts each hold at ``preload_compare``. Margins over the
+    corners: crossover (Hz), phase margin (degrees), gain margin (dB), each with the
+    corner where it is worst; ``settling_time_s`` the slowest corner's 5 % settling after a
+    step at the plant input (a supply step). Quantisation: one ADC code of current
+    (``current_lsb_a``), one compare count (``duty_step_current_a``, the largest over the
+    corners) and the larger of the two (``smallest_step_a``). ``min_duty``/``max_duty``:
+    the duty the loop settles at over the corners; ``saturated_corners`` where it would
+    need more than ``max_duty_limit`` (or less than the least on-time allows).
+    ``plants``: the linearised plant ``V_g / (R_eff + s L)`` (``vg_v``, ``r_eff_ohm``,
+    ``inductance_h``) with its crossover, margins and settling time at the corners that
+    name a figure above (``role``: designed, lowest crossover, lowest phase margin,
+    slowest settling), for the reader to check with a tool of their own.
+    """
+
+    sample_point: str
+    setpoint_code: int
+    setpoint_a: float
+    bandwidth_hz: float
+    design_corner: str
+    kp: float
+    ki: float
+    gain_shift: int
+    kp_q: int
+    ki_q: int
+    kp_rounding: float
+    ki_rounding: float
+    min_compare: int
+    max_compare: int
+    max_duty_limit: float
+    integrator_min: int
+    integrator_max: int
+    preload_compare: int
+    crossover_hz: float
+    crossover_min_hz: float
+    crossover_min_corner: str
+    crossover_max_hz: float
+    crossover_max_corner: str
+    phase_margin_deg: float
+    phase_margin_corner: str
+    gain_margin_db: float
+    gain_margin_corner: str
+    settling_time_s: float
+    settling_corner: str
+    current_lsb_a: float
+    duty_step_current_a: float
+    smallest_step_a: float
+    min_duty: float
+    min_duty_corner: str
+    max_duty: float
+    max_duty_corner: str
+    saturated_corners: int
+    corners: int
+    plants: list = field(default_factory=list)
+
+
+@dataclass(frozen=True)
 class CurrentModeResult:
     """The ``current_mode`` object of the design JSON (SI, Hz, degC)."""
 
@@ -250,6 +317,7 @@ class HoldResult:
     thresholds: Thresholds | None = None
     regulation: str = "fixed"
     coil_power_corner: str = ""
+    closed_loop: ClosedLoopResult | None = None
 
 
 @dataclass(frozen=True)
@@ -389,6 +457,7 @@ class Design:
         """Plain JSON-ready dict (the ``design --json`` document)."""
         hold = asdict(self.hold)
         current_mode = hold.pop("current_mode")
+        closed_loop = hold.pop("closed_loop")
         hold.pop("thresholds")
         out = {
             **document_head(self.drive, self.version, self.input_hash),
@@ -413,6 +482,8 @@ class Design:
             out["peak_table"] = asdict(self.peak_table)
         if current_mode is not None:
             out["current_mode"] = current_mode
+        if closed_loop is not None:
+            out["closed_loop"] = closed_loop
         if self.monte_carlo is not None:
             out["monte_carlo"] = self.monte_carlo
         return json_ready(out)

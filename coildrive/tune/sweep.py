@@ -622,6 +622,10 @@ def tune(drive: Drive, options: TuneOptions | None = None) -> TuneResult:
     if drive.hold.mode != "voltage":
         raise InputError(drive.source, "hold.mode", "coildrive tune sweeps the PWM of a voltage-mode "
                          "hold; for mode = \"current\" run coildrive design (it sizes the thresholds)")
+    if drive.hold.regulation == "closed_loop":
+        raise InputError(drive.source, "hold.regulation", "coildrive tune sweeps a fixed or supply-table "
+                         "compare; a closed-loop hold holds its set-point at every corner: set "
+                         "hold.current and run coildrive design")
     t0 = time.perf_counter()
     grid = corner_grid(drive)
     f_lo, f_hi, f_src = frequency_range(drive, options)

@@ -13,6 +13,8 @@
  * A small integer coil model gives the current: it climbs toward FULL x compare / period
  * while the switch is on and decays by a quarter per conversion while it is off. The
  * hooks only log into RAM, so the timed calls hold no UART waits and no model arithmetic.
+ * OP_LEVEL holds the current at a given code whatever the switch does (a closed-loop
+ * hold's test feeds its samples so).
  */
 #include <stdint.h>
 #include "coil_driver.h"
@@ -26,9 +28,11 @@
 #define OP_MODE 6u
 #define OP_FULL 7u
 #define OP_DIP 8u
+#define OP_LEVEL 9u
 #define MODE_COIL 0u
 #define MODE_OPEN 1u
 #define MODE_SHORT 2u
+#define MODE_LEVEL 3u
 #define LOG 16u
 #ifdef COIL_DRIVER_DIP_CODES
 #define DIP COIL_DRIVER_DIP_CODES
@@ -80,7 +84,7 @@ static uint8_t log_len;
 static uint16_t now_tick, now_conv;
 static uint8_t sw, bypass;
 static uint32_t compare;
-static uint16_t current, supply, full, dip_at;
+static uint16_t current, supply, full, dip_at, level;
 static uint8_t mode;
 
 static void log_add(uint8_t kind, int32_t value)
@@ -164,7 +168,9 @@ static void drain(void)
 /* The coil: the current of the next conversion, from the switch as it is now. */
 static void model(void)
 {
-    if (mode == MODE_OPEN) {
+    if (mode == MODE_LEVEL) {
+        current = level;
+    } else if (mode == MODE_OPEN) {
         current = 0u;
     } else if (mode == MODE_SHORT) {
         current = sw ? (uint16_t)COIL_ADC_MAX_CODE : 0u;
@@ -220,6 +226,10 @@ int main(void)
             mode = (uint8_t)arg;
         } else if (op == OP_FULL) {
             full = arg;
+        } else if (op == OP_LEVEL) {
+            mode = MODE_LEVEL;
+            level = arg;
+            current = arg;
         } else if (op == OP_DIP) {
             dip_at = (uint16_t)(now_tick + arg);
         } else {

@@ -32,11 +32,14 @@
 #elif defined(COIL_HOLD_REGULATION) && defined(COIL_REGULATION_CURRENT) && \
     COIL_HOLD_REGULATION == COIL_REGULATION_CURRENT
 #define ENV_REGULATION 2
+#elif defined(COIL_HOLD_REGULATION) && defined(COIL_REGULATION_CLOSED_LOOP) && \
+    COIL_HOLD_REGULATION == COIL_REGULATION_CLOSED_LOOP
+#define ENV_REGULATION 3
 #else
 #define ENV_REGULATION 1
 #endif
 
-static const char *const regulation_name[] = {"fixed", "supply_table", "current"};
+static const char *const regulation_name[] = {"fixed", "supply_table", "current", "closed_loop"};
 
 static long compare_for(unsigned int code)
 {
@@ -69,6 +72,9 @@ int main(void)
     printf("prescaler %lu\n", (unsigned long)COIL_TIMER_PRESCALER);
     printf("clock %lu\n", (unsigned long)COIL_TIMER_CLOCK_HZ);
     printf("over_current_code %lu\n", (unsigned long)COIL_ADC_OVER_CURRENT_CODE);
+#if ENV_REGULATION == 3
+    printf("setpoint_code %lu\n", (unsigned long)COIL_LOOP_SETPOINT_CODE);
+#endif
     while (scanf("%u", &code) == 1) {
         printf("code %u %ld %ld\n", code, compare_for(code), peak_ticks_for(code));
     }
