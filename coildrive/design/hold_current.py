@@ -296,6 +296,12 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     if samples > 0:
         raise InputError("--samples", "", "the Monte Carlo covers the voltage-mode hold only "
                          "(this drive has hold.mode = \"current\")")
+    for key, given in (("duty", drive.duty is not None),
+                       ("thermal.capacity", drive.thermal.capacity > 0)):
+        if given:
+            raise InputError(drive.source, key, "an on/off cycle's coil temperature is modelled "
+                             "for voltage-mode holds only; leave [duty] and thermal.capacity / "
+                             "time_constant out with mode = \"current\"")
     if drive.pull_in.compensate:
         raise InputError(drive.source, "pull_in.compensate", "a supply-compensated peak is "
                          "designed for voltage-mode holds only; leave it out with mode = \"current\"")
