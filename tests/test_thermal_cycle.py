@@ -265,6 +265,38 @@ def test_capacity_alone_gives_the_cold_start_only(tmp_path):
     assert t.cold_start["time_to_limit_s"] is None, "the demo valve never reaches its limit"
 
 
+def _variant(tmp_path, text):
+    p = tmp_path / "variant.toml"
+    p.write_text(text.replace('board = "lab-m32-zener"',
+                              f'board = "{EXAMPLES.parent / "boards" / "lab-m32-zener.toml"}"'))
+    return design(load_drive(p))
+
+
+def test_duty_alone_keeps_the_continuous_hold(tmp_path, cycled):
+    # no heat capacity: the coil is taken at a continuous hold's temperature (tau -> 0),
+    # and the freewheel's average power is still given
+    d = _variant(tmp_path, EXAMPLE.read_text().replace('capacity = "18 J/K"', ''))
+    t = d.thermal_cycle
+    assert t.cycle is None and t.cold_start is None and t.warm_start is None
+    assert d.hold.coil_temp_c == pytest.approx(t.continuous_hold_c, abs=1e-6)
+    assert d.hold.coil_temp_c > cycled.hold.coil_temp_c
+    assert t.freewheel["release_power_w"] > 0
+
+
+@pytest.mark.parametrize("rating,ok", [("5 W", True), ("3 W", False)])
+def test_freewheel_average_power_against_the_rating(tmp_path, cycled, rating, ok):
+    # the Zener averages the releases x 0.2/s + its hold power x (1.5 s - peak) / 5 s;
+    # checked against rating x 50 % (power derating, common practice)
+    fw = cycled.thermal_cycle.freewheel
+    share = (1.5 - cycled.pull_in.peak_time_s) / 5.0
+    want = fw["release_elements_w"]["zener"] + cycled.hold.freewheel_elements_w["zener"] * share
+    assert fw["elements_average_w"]["zener"] == pytest.approx(want, rel=1e-12)
+    d = _variant(tmp_path, EXAMPLE.read_text() + f'\n[freewheel]\nzener_power_rating = "{rating}"\n')
+    check = next(c for c in d.checks if c.name == "zener_average_power")
+    assert check.ok is ok, check.detail
+    assert (want <= 0.5 * float(rating.split()[0])) is ok
+
+
 # --------------------------------------------------------------------------- command line
 def test_cli_design_json_table_and_plot(tmp_path):
     png = tmp_path / "d.png"

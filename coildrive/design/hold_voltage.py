@@ -139,7 +139,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     offs = turn_offs(drive, env, res, peak_end, thresholds.trip_current_a)
     release = release_result(drive, env, res, offs)
     pull_in = pull_in_result(drive, env, res, pk, shortest_peak_current(drive, res_low, short))
-    thermal = thermal_result(drive, plan, f_hold, period, peak_time, offs, hold.freewheel_power_w)
+    thermal = thermal_result(drive, plan, f_hold, period, peak_time, offs, hold.freewheel_power_w,
+                             hold.freewheel_elements_w)
     timer_result = TimerResult(clock_hz=board.timer.clock, bits=board.timer.bits,
                                prescaler=timer.prescaler, period_ticks=period,
                                compare_ticks=compare, frequency_hz=f_hold,
@@ -155,7 +156,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
         checks += armature_checks(drive, env, res_low, arm, release)
     checks += loss_checks(drive, hold, loss, env, split)
     checks += energy_checks(drive, release)
-    checks += thermal_checks(drive, pull_in.peak_time_s)
+    checks += thermal_checks(drive, pull_in.peak_time_s, thermal)
     notes = cautions(drive, hold, release)
     if thermal is not None and thermal.cycle is not None:
         notes[2] = cycle_caution(thermal)   # the envelope's hot coil is the cycle's

@@ -363,7 +363,7 @@ class ThermalCycleResult:
     actuation's peak, hold and release (J). ``freewheel`` (with ``[duty]``): the end of
     hold's turn-off energy into the freewheel elements (J, worst corner) x the actuation
     rate, the hold's freewheel power (worst corner) x the hold's share of the cycle, and
-    their sum (``average_power_w``). ``cold_start`` / ``warm_start`` (with a heat
+    their sum (``average_power_w``); per element ``elements_average_w``. ``cold_start`` / ``warm_start`` (with a heat
     capacity; the warm one with ``[duty]``): the coil held on from the ambient / from the
     cycle's coolest point, at the heating point that reaches ``max_coil_temp_c`` first:
     ``time_to_limit_s`` (``None``: never), the start, and the heat line it climbs under

@@ -26,7 +26,7 @@ from ..model.pwm import pwm_steady_state
 from ..model.rl import decay_integrals, decay_time, rise_integrals
 from ..model.thermal_cycle import chord, cycle_steady_state, heating, time_to_rise
 from .evaluate import hold_power, hold_temperature
-from .result import Check, ThermalCycleResult
+from .result import ELEMENT_NAMES, Check, ThermalCycleResult
 
 
 def cycling(drive: Drive) -> bool:
@@ -96,12 +96,14 @@ def _start(drive: Drive, power_at, peak_at, start, ambient, label):
 
 
 def thermal_result(drive: Drive, plan, frequency: float, period: int, peak_time: float,
-                   offs: list[dict], hold_freewheel_w: float) -> ThermalCycleResult | None:
+                   offs: list[dict], hold_freewheel_w: float,
+                   hold_elements_w: dict) -> ThermalCycleResult | None:
     """The ``thermal_cycle`` result of a voltage-mode design (``None`` without ``[duty]``
     and ``thermal.capacity``): ``plan`` is the solved hold
     (:class:`~coildrive.design.regulation.HoldPlan`, its heating points), ``offs`` the
     turn-offs (:func:`coildrive.design.turnoff.turn_offs`), ``hold_freewheel_w`` the
-    freewheel path's hold power at its worst corner (W)."""
+    freewheel path's hold power at its worst corner and ``hold_elements_w`` each
+    element's (W)."""
     th, cyc = drive.thermal, drive.duty
     if cyc is None and th.capacity <= 0:
         return None
@@ -121,13 +123,17 @@ def thermal_result(drive: Drive, plan, frequency: float, period: int, peak_time:
         out.update(on_time_s=cyc.on_time, off_time_s=cyc.off_time, actuation_rate_hz=cyc.actuation_rate)
         hold_share = max(cyc.on_time - peak_time, 0.0) / cyc.period
         end_of_hold = offs[0]
+        release_w = {n: e * cyc.actuation_rate for n, e in end_of_hold["elements_j"].items()}
+        names = list(release_w) + [n for n in hold_elements_w if n not in release_w]
         out["freewheel"] = {
             "release_energy_j": end_of_hold["energy_j"],
             "release_power_w": end_of_hold["energy_j"] * cyc.actuation_rate,
-            "release_elements_w": {n: e * cyc.actuation_rate for n, e in end_of_hold["elements_j"].items()},
+            "release_elements_w": release_w,
             "release_corner": end_of_hold["energy_corner"],
             "hold_power_w": hold_freewheel_w * hold_share,
             "average_power_w": end_of_hold["energy_j"] * cyc.actuation_rate + hold_freewheel_w * hold_share,
+            "elements_average_w": {n: release_w.get(n, 0.0) + hold_elements_w.get(n, 0.0) * hold_share
+                                   for n in names},
         }
     if th.capacity <= 0 or th.resistance <= 0:
         return ThermalCycleResult(**out)
@@ -186,17 +192,36 @@ def _duration(seconds: float | None) -> str:
     return f"{seconds:.3g} s"
 
 
-def thermal_checks(drive: Drive, peak_time: float | None) -> list[Check]:
+def thermal_checks(drive: Drive, peak_time: float | None,
+                   result: ThermalCycleResult | None) -> list[Check]:
     """With a ``[duty]``: the on-time holds the whole peak phase (``peak_time`` s, ``None``
-    when the pull-in is not reached)."""
-    if drive.duty is None or peak_time is None:
+    when the pull-in is not reached), and each freewheel element with a power rating takes
+    no more than its rating x ``power_derating`` on average over the cycle (the hold's
+    own check takes a continuous hold)."""
+    if drive.duty is None or result is None:
         return []
+    out = []
     on = drive.duty.on_time
-    ok = on > peak_time
-    return [Check("duty_on_time", ok,
-                  f"duty.on_time {_duration(on)} vs the peak phase {peak_time * 1e3:.4g} ms"
-                  + ("" if ok else " — the actuation ends before the peak does: lengthen "
-                     "duty.on_time"))]
+    if peak_time is not None:
+        ok = on > peak_time
+        out.append(Check("duty_on_time", ok,
+                         f"duty.on_time {_duration(on)} vs the peak phase {peak_time * 1e3:.4g} ms"
+                         + ("" if ok else " — the actuation ends before the peak does: lengthen "
+                            "duty.on_time")))
+    fw = drive.freewheel
+    for name, w in result.freewheel["elements_average_w"].items():
+        rating = getattr(fw, f"{name}_power_rating", 0.0)
+        if rating <= 0:
+            continue
+        limit = rating * fw.power_derating
+        ok = w <= limit
+        out.append(Check(f"{name}_average_power", ok,
+                         f"over the on/off cycle the {ELEMENT_NAMES[name]} takes {w:.3g} W on average "
+                         f"(releases x {result.actuation_rate_hz:.4g}/s + the hold's share) vs {limit:.3g} W "
+                         f"({fw.power_derating:.0%} of the {rating:.3g} W rating, power derating: common "
+                         "practice)" + ("" if ok else " — fewer actuations a second, a lower hold "
+                                        "current or a part rated for more")))
+    return out
 
 
 def thermal_cautions(result: ThermalCycleResult | None) -> list[str]:
