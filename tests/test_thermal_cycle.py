@@ -123,6 +123,41 @@ def test_cycle_bounds_solve_ivp_for_a_voltage_driven_coil():
     assert cool <= st.coolest[0] + 1e-6 and st.coolest[0] - cool < 0.05
 
 
+def test_closed_form_cycle_temperature_of_a_constant_current_coil(cycled):
+    # the tune's closed form (loss linear in T: no iteration) against the iterated orbit of
+    # the same loss, and against scipy solve_ivp over 90 cycles
+    drive = cycled.drive
+    from coildrive.model.thermal import coil_r20
+    from coildrive.model.thermal_cycle import closed_form_cycle_temperature
+    rms, amb, rf = 0.5, np.array([45.0]), np.array([1.07])
+    rho = float(coil_r20(drive, 1.07))
+
+    def power(t):
+        return rms * rms * rho * (1 + ALPHA * (np.asarray(t) - 20.0))
+    th, cyc = drive.thermal, drive.duty
+    closed = float(closed_form_cycle_temperature(drive, amb, rf, rms)[0])
+    iterated = float(cycle_steady_state(amb, power, cyc.on_time, cyc.off_time, th.resistance,
+                                        th.capacity).hottest[0])
+    assert closed == pytest.approx(iterated, abs=1e-4)
+    # periodic: from the coolest point (the hottest after an off-time of plain cooling,
+    # e^(-t_off / tau)) one cycle integrated by scipy solve_ivp comes back to both
+    cool = 45.0 + (closed - 45.0) * math.exp(-cyc.off_time / (th.resistance * th.capacity))
+    hot, back = ivp_cycle_from(lambda t: float(power(t)), 45.0, cool, cyc.on_time, cyc.off_time,
+                               th.resistance, th.capacity)
+    assert hot == pytest.approx(closed, abs=1e-6), "scipy solve_ivp, one cycle from the coolest point"
+    assert back == pytest.approx(cool, abs=1e-6), "scipy solve_ivp, one cycle from the coolest point"
+
+
+def test_tune_sweeps_the_cycle():
+    # a continuous hold would cook this coil (143 degC > 130): the tune must find holds
+    # over the cycle, and its best one as the design evaluates it
+    r = runner.invoke(app, ["tune", str(EXAMPLE), "--json"])
+    assert r.exit_code == 0, r.output
+    doc = json.loads(r.stdout)
+    assert doc["recommendation"] is not None
+    assert doc["recommendation"]["coil_temp_c"] <= 130.0
+
+
 def test_on_time_to_the_limit_hand_worked():
     # P = 10 W, R = 10 K/W, C = 20 J/K: tau = 200 s, settles 100 K above ambient.
     # To 80 K from cold: t = tau ln(100 / (100 - 80)) = 200 ln 5 = 321.888 s (hand-worked)

@@ -153,3 +153,21 @@ def cycle_steady_state(ambient, power_at, t_on, t_off, r_th, capacity, tol: floa
             return CycleState(np.where(bad, np.inf, hi), np.where(bad, np.inf, lo), heat, slope)
     done = moved < tol * 10
     return CycleState(np.where(bad | ~done, np.inf, hi), np.where(bad | ~done, np.inf, lo), heat, slope)
+
+
+def closed_form_cycle_temperature(drive, ambient, r_factor, rms):
+    """Hottest coil (degC) over the on/off cycle of ``drive.duty`` for a coil carrying
+    ``rms`` A while on, heat capacity ``drive.thermal.capacity``: with the copper law
+    the loss ``rms^2 rho (1 + a (T - 20))`` is linear in T, so the orbit is exact (no
+    iteration) -- the cycle's counterpart of
+    :func:`coildrive.model.thermal.closed_form_temperature`; ``inf`` on a runaway."""
+    from .circuit import COPPER_ALPHA
+    from .thermal import coil_r20
+
+    th, cyc = drive.thermal, drive.duty
+    p20 = np.asarray(rms, float) ** 2 * coil_r20(drive, r_factor)
+    ambient = np.asarray(ambient, float)
+    top, _ = orbit(p20 * (1.0 + COPPER_ALPHA * (ambient - 20.0)), p20 * COPPER_ALPHA,
+                   cyc.on_time, cyc.off_time, th.resistance, th.capacity)
+    t = ambient + top
+    return np.where(np.isfinite(t) & (t <= CEILING_C), t, np.inf)
