@@ -9,6 +9,7 @@ from rich.table import Table
 from ..console import print_cautions, print_verdict
 from ..units import format_si
 from .result import ELEMENT_NAMES, Design
+from .thermal_cycle import duration_text
 
 
 def _ms(seconds: float) -> str:
@@ -102,12 +103,6 @@ def _turn_off_rows(d: Design) -> list:
             for o in d.release.turn_offs]
 
 
-def _minutes(seconds: float | None) -> str:
-    if seconds is None:
-        return "never"
-    return f"{seconds / 60.0:.3g} min" if seconds >= 120.0 else _ms(seconds)
-
-
 def _thermal_rows(d: Design) -> list:
     """With ``[duty]`` or a heat capacity: the cycle, the heat of one actuation, the
     freewheel's average power and the on-time to the coil's limit."""
@@ -116,11 +111,11 @@ def _thermal_rows(d: Design) -> list:
         return []
     rows = []
     if t.on_time_s is not None:
-        rows.append(("on/off cycle", f"{_minutes(t.on_time_s)} / {_minutes(t.off_time_s)}",
+        rows.append(("on/off cycle", f"{duration_text(t.on_time_s)} / {duration_text(t.off_time_s)}",
                      f"{t.actuation_rate_hz * 60:.4g} actuations a minute"))
     if t.capacity_j_k is not None:
         rows.append(("coil heat capacity", f"{t.capacity_j_k:.4g} J/K",
-                     f"time constant {_minutes(t.time_constant_s)} with {d.drive.thermal.resistance:g} K/W"))
+                     f"time constant {duration_text(t.time_constant_s)} with {d.drive.thermal.resistance:g} K/W"))
     c = t.cycle
     if c is not None:
         rows.append(("coil over the cycle", f"{c['coolest_c']:.1f} .. {c['hottest_c']:.1f} degC",
@@ -139,7 +134,7 @@ def _thermal_rows(d: Design) -> list:
                      f"{format_si(fw['hold_power_w'], 'W')}"))
     for name, s in (("cold start", t.cold_start), ("warm start", t.warm_start)):
         if s is not None:
-            rows.append((f"on-time to {t.max_coil_temp_c:g} degC ({name})", _minutes(s["time_to_limit_s"]),
+            rows.append((f"on-time to {t.max_coil_temp_c:g} degC ({name})", duration_text(s["time_to_limit_s"]),
                          f"held on from {s['start_c']:.1f} degC at {s['corner']}"))
     return rows
 

@@ -25,6 +25,7 @@ from ..model.circuit import loop
 from ..model.pwm import pwm_steady_state
 from ..model.rl import decay_integrals, decay_time, rise_integrals
 from ..model.thermal_cycle import chord, cycle_steady_state, heating, time_to_rise
+from ..units import format_si
 from .evaluate import hold_power, hold_temperature
 from .result import ELEMENT_NAMES, Check, ThermalCycleResult
 
@@ -184,12 +185,13 @@ def thermal_curves(result: ThermalCycleResult, points: int = 200) -> dict:
     return out
 
 
-def _duration(seconds: float | None) -> str:
+def duration_text(seconds: float | None) -> str:
+    """``"10.1 min"`` from two minutes up, ``"4.4 ms"`` below, ``"never"`` for ``None``."""
     if seconds is None:
         return "never"
     if seconds >= 120.0:
         return f"{seconds / 60.0:.3g} min"
-    return f"{seconds:.3g} s"
+    return format_si(seconds, "s")
 
 
 def thermal_checks(drive: Drive, peak_time: float | None,
@@ -205,7 +207,7 @@ def thermal_checks(drive: Drive, peak_time: float | None,
     if peak_time is not None:
         ok = on > peak_time
         out.append(Check("duty_on_time", ok,
-                         f"duty.on_time {_duration(on)} vs the peak phase {peak_time * 1e3:.4g} ms"
+                         f"duty.on_time {duration_text(on)} vs the peak phase {peak_time * 1e3:.4g} ms"
                          + ("" if ok else " — the actuation ends before the peak does: lengthen "
                             "duty.on_time")))
     fw = drive.freewheel
@@ -228,7 +230,7 @@ def thermal_cautions(result: ThermalCycleResult | None) -> list[str]:
     """The on-time limits, where the coil can reach its limit when held on."""
     if result is None:
         return []
-    parts = [f"{_duration(s['time_to_limit_s'])} from {what}"
+    parts = [f"{duration_text(s['time_to_limit_s'])} from {what}"
              for what, s in (("a cold start", result.cold_start), ("the warm coil of the on/off "
                                                                    "cycle", result.warm_start))
              if s is not None and s["time_to_limit_s"] is not None]
@@ -243,7 +245,7 @@ def thermal_cautions(result: ThermalCycleResult | None) -> list[str]:
 def cycle_caution(result: ThermalCycleResult) -> str:
     """The coil-temperature caution when the envelope takes the on/off cycle's hottest coil."""
     c = result.cycle
-    return (f"Over its on/off cycle ({_duration(result.on_time_s)} on, {_duration(result.off_time_s)} off) "
+    return (f"Over its on/off cycle ({duration_text(result.on_time_s)} on, {duration_text(result.off_time_s)} off) "
             f"the coil reaches up to {c['hottest_c']:.0f} degC; held on for good it would settle at "
             f"{result.continuous_hold_c:.0f} degC. Hot coils burn and insulation ages fast above its "
             "class rating.")
