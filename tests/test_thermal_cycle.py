@@ -332,6 +332,33 @@ def test_freewheel_average_power_against_the_rating(tmp_path, cycled, rating, ok
     assert (want <= 0.5 * float(rating.split()[0])) is ok
 
 
+def test_armature_peak_heat_through_the_open_inductance(tmp_path):
+    # with an [armature] the peak heats through the open inductance (it bounds the moving
+    # armature's current from above): R int i^2 dt of the rise V/R (1 - e^(-t R / L_open)),
+    # integrated here by scipy's quad at the hottest heating point
+    import re
+
+    from scipy.integrate import quad
+    text = (EXAMPLES / "locker-latch-12v.toml").read_text()
+    text = re.sub(r'board = "([^"]+)"', lambda m: f'board = "{EXAMPLES.parent / "boards" / m.group(1)}.toml"',
+                  text, count=1)
+    text = text.replace("[thermal]\n", '[thermal]\ncapacity = "5 J/K"\n', 1) + '\n[duty]\non_time = "2 s"\noff_time = "8 s"\n'
+    p = tmp_path / "latch.toml"
+    p.write_text(text)
+    d = design(load_drive(p))
+    c = d.thermal_cycle.cycle
+    drive = d.drive
+    from coildrive.model.circuit import loop
+    m = re.match(r"([\d.]+) V, ([-\d.]+) degC, R([-+\d.]+)%, L([-+\d.]+)%", c["corner"])
+    v, rf, lf = float(m.group(1)), 1 + float(m.group(3)) / 100, 1 + float(m.group(4)) / 100
+    lp = loop(drive, np.array([v]), np.array([c["hottest_c"]]), np.array([rf]), np.array([lf]))
+    l_open = drive.armature.inductance_open * lf
+    r_on, r_c = float(lp.r_on[0]), float(lp.r_coil[0])
+    want, _ = quad(lambda t: r_c * (v / r_on * (1 - math.exp(-t * r_on / l_open))) ** 2, 0.0,
+                   d.pull_in.peak_time_s, epsabs=1e-12)
+    assert c["peak_energy_j"] == pytest.approx(want, rel=1e-4), "scipy quad of the open-inductance rise"
+
+
 # --------------------------------------------------------------------------- command line
 def test_cli_design_json_table_and_plot(tmp_path):
     png = tmp_path / "d.png"

@@ -36,11 +36,21 @@ def cycling(drive: Drive) -> bool:
     return drive.duty is not None and drive.thermal.capacity > 0 and drive.thermal.resistance > 0
 
 
+def peak_inductance(drive: Drive, lp):
+    """Inductance (H) of the peak's heat: the loop's, or with an ``[armature]`` the open
+    one (same tolerance factor). While the gap closes ``L(x) di/dt <= V - R i``, so the rise
+    through the open inductance bounds the moving armature's current -- and its heat --
+    from above."""
+    if drive.armature is None:
+        return lp.inductance
+    return lp.inductance * drive.armature.inductance_open / drive.armature.inductance_closed
+
+
 def on_energies(drive: Drive, supply, r_factor, l_factor, duty, frequency, factors: dict,
                 peak_time: float):
     """A function of the coil temperature (degC, array) giving the coil's copper heat of
     one actuation, ``(peak J, hold J, release J)``: the peak full on from zero for
-    ``min(peak_time, on_time)`` s, the hold's periodic steady state for the rest of the
+    ``min(peak_time, on_time)`` s (:func:`peak_inductance`), the hold's periodic steady state for the rest of the
     on-time, the release from the top of the hold ripple to zero through the hold's
     freewheel path (with split decay the slow one: the longer decay, the more heat)."""
     t_on = drive.duty.on_time
@@ -50,7 +60,7 @@ def on_energies(drive: Drive, supply, r_factor, l_factor, duty, frequency, facto
     def at(temp):
         lp = loop(drive, supply, temp, r_factor, l_factor, **factors)
         ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
-        _, s_pk = rise_integrals(t_pk, 0.0, lp.v_on, lp.r_on, lp.inductance)
+        _, s_pk = rise_integrals(t_pk, 0.0, lp.v_on, lp.r_on, peak_inductance(drive, lp))
         t0 = decay_time(0.0, ss.i_max, lp.r_off, lp.v_off, lp.inductance)
         _, s_rel = decay_integrals(t0, ss.i_max, lp.r_off, lp.v_off, lp.inductance)
         return lp.r_coil * s_pk, ss.rms**2 * lp.r_coil * t_hold, lp.r_coil * s_rel
@@ -145,7 +155,7 @@ def thermal_result(drive: Drive, plan, frequency: float, period: int, peak_time:
 
     def peak_heat(temp):   # the peak's copper heat (J), full on from zero for the peak time
         lp = loop(drive, heat.supply, temp, heat.tol.r_factor, heat.tol.l_factor, **factors)
-        _, s_pk = rise_integrals(peak_time, 0.0, lp.v_on, lp.r_on, lp.inductance)
+        _, s_pk = rise_integrals(peak_time, 0.0, lp.v_on, lp.r_on, peak_inductance(drive, lp))
         return lp.r_coil * s_pk
     out["cold_start"] = _start(drive, power_at, peak_heat, heat.ambient.copy(), heat.ambient,
                                heat.label)
