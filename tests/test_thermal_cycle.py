@@ -264,6 +264,15 @@ def ivp_cycle_from(power, ambient, start, t_on, t_off, r_th, capacity):
     return hot, seg(False, hot, t_off)
 
 
+def test_monte_carlo_takes_the_cycle(cycled):
+    # every sample lies inside the envelope: its hottest coil over the cycle is at most the
+    # design's, so none is too hot (a continuous hold would put most above 130 degC)
+    d = design(cycled.drive, samples=4000, seed=3)
+    mc = d.monte_carlo
+    assert mc["failures"]["coil_too_hot"] == 0
+    assert mc["coil_temp_c"]["max"] <= d.thermal_cycle.cycle["hottest_c"] + 1e-6
+
+
 def test_freewheel_average_power(cycled):
     t = cycled.thermal_cycle
     fw = t.freewheel

@@ -47,14 +47,15 @@ def peak_inductance(drive: Drive, lp):
 
 
 def on_energies(drive: Drive, supply, r_factor, l_factor, duty, frequency, factors: dict,
-                peak_time: float):
+                peak_time):
     """A function of the coil temperature (degC, array) giving the coil's copper heat of
     one actuation, ``(peak J, hold J, release J)``: the peak full on from zero for
-    ``min(peak_time, on_time)`` s (:func:`peak_inductance`), the hold's periodic steady state for the rest of the
+    ``min(peak_time, on_time)`` s (through :func:`peak_inductance`; ``peak_time`` may be
+    an array over the points), the hold's periodic steady state for the rest of the
     on-time, the release from the top of the hold ripple to zero through the hold's
     freewheel path (with split decay the slow one: the longer decay, the more heat)."""
     t_on = drive.duty.on_time
-    t_pk = min(peak_time, t_on)
+    t_pk = np.minimum(peak_time, t_on)
     t_hold = t_on - t_pk
 
     def at(temp):
@@ -68,7 +69,7 @@ def on_energies(drive: Drive, supply, r_factor, l_factor, duty, frequency, facto
 
 
 def cycle_states(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
-                 factors: dict | None = None, peak_time: float = 0.0):
+                 factors: dict | None = None, peak_time=0.0):
     """The cycle's periodic steady state at each point
     (:class:`~coildrive.model.thermal_cycle.CycleState`): the on-time's mean power is the
     actuation's copper heat (:func:`on_energies`) over ``duty.on_time``."""
