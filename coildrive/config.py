@@ -81,6 +81,11 @@ BOUNDS: dict[str, tuple[float, float, str]] = {
     "ambient.max": (-75.0, 200.0, "temperature"),
     "thermal.resistance": (0.0, 10e3, "thermal_resistance"),
     "thermal.max_coil_temp": (-50.0, 250.0, "temperature"),
+    "thermal.capacity": (1e-3, 1e5, "heat_capacity"),
+    "thermal.time_constant": (0.01, 1e5, "time"),
+    "duty.on_time": (1e-4, 1e5, "time"),
+    "duty.off_time": (1e-4, 1e7, "time"),
+    "duty.actuation_rate": (1e-7, 1e3, "frequency"),
     "pull_in.current": (1e-6, 1000.0, "current"),
     "pull_in.margin": (1.0, 10.0, "dimensionless"),
     "pull_in.current_margin": (1.0, 3.0, "dimensionless"),
@@ -206,10 +211,35 @@ class Ambient:
 
 @dataclass(frozen=True)
 class Thermal:
-    """Coil-to-ambient thermal resistance in K/W (0 = no self-heating) and the coil limit in degC."""
+    """Coil-to-ambient thermal resistance in K/W (0 = no self-heating), the coil limit in
+    degC and the coil's heat capacity in J/K (0 = not given: the coil is taken at the
+    temperature a continuous hold settles at). ``time_constant`` is ``R_th C`` in s."""
 
     resistance: float
     max_coil_temp: float
+    capacity: float = 0.0
+
+    @property
+    def time_constant(self) -> float:
+        return self.resistance * self.capacity
+
+
+@dataclass(frozen=True)
+class Duty:
+    """The on/off cycle of the actuations (``[duty]``): each actuation keeps the coil on
+    for ``on_time`` s (peak and hold), then off for ``off_time`` s."""
+
+    on_time: float
+    off_time: float
+
+    @property
+    def period(self) -> float:
+        return self.on_time + self.off_time
+
+    @property
+    def actuation_rate(self) -> float:
+        """Actuations per second (Hz)."""
+        return 1.0 / self.period
 
 
 @dataclass(frozen=True)
@@ -469,6 +499,7 @@ class Drive:
     freewheel: Freewheel
     armature: Armature | None = None
     source: str = ""
+    duty: Duty | None = None
 
     def input_hash(self) -> str:
         """SHA-256 (first 16 hex digits) of the parsed inputs as canonical JSON.
@@ -478,6 +509,8 @@ class Drive:
         data = dataclasses.asdict(self)
         data.pop("source", None)
         data["board"].pop("source", None)
+        if data.get("duty") is None:   # added later: a file without [duty] keeps its hash
+            data.pop("duty", None)
         _drop_later_defaults(data)
         text = json.dumps(data, sort_keys=True, separators=(",", ":"))
         return hashlib.sha256(text.encode("utf-8")).hexdigest()[:16]
@@ -487,6 +520,7 @@ class Drive:
 #: default, so that files which do not use them keep their hash (and headers their bytes).
 _LATER_FIELDS = (
     (("hold",), Hold, _CURRENT_MODE_KEYS + ("regulation",)),
+    (("thermal",), Thermal, ("capacity",)),
     (("pull_in",), PullIn, ("current_margin", "settle_time", "compensate")),
     (("board", "sense"), Sense, ("resistance_tolerance", "gain_tolerance")),
     (("board", "supply_sense"), SupplySense, ("divider_tolerance",)),
@@ -731,6 +765,46 @@ def _derating(sec: _Section, key: str, default: float, what: str) -> float:
     return value
 
 
+def _read_heat_capacity(s: _Section, thermal: Thermal) -> Thermal:
+    """``[thermal] capacity`` (J/K) or ``time_constant`` (s, = resistance x capacity): two
+    forms of one quantity, so at most one of them."""
+    given = [k for k in ("capacity", "time_constant") if k in s.table]
+    if len(given) == 2:
+        raise s.fail("time_constant", "given together with thermal.capacity, expected one of "
+                     "thermal.capacity or thermal.time_constant (two forms of one quantity)")
+    if not given:
+        return thermal
+    key = given[0]
+    if thermal.resistance <= 0:
+        raise s.fail(key, "needs thermal.resistance above 0 (0 means no self-heating: the coil "
+                     "stays at the ambient), expected a coil-to-ambient thermal resistance")
+    if key == "capacity":
+        return dataclasses.replace(thermal, capacity=s.quantity("capacity", "heat_capacity"))
+    tau = s.quantity("time_constant", "time")
+    return dataclasses.replace(thermal, capacity=tau / thermal.resistance)
+
+
+def _read_duty(s: _Section) -> Duty:
+    """``[duty]``: ``on_time`` with ``off_time`` or ``actuation_rate`` (not both)."""
+    if "off_time" in s.table and "actuation_rate" in s.table:
+        raise s.fail("actuation_rate", "given together with duty.off_time, expected one of "
+                     "duty.off_time or duty.actuation_rate (two forms of one quantity)")
+    on = s.quantity("on_time", "time")
+    if "actuation_rate" in s.table:
+        rate = s.quantity("actuation_rate", "frequency")
+        if not on < 1.0 / rate:
+            raise s.fail("on_time", f"{on:g} s is not shorter than the actuation period "
+                         f"1 / duty.actuation_rate = {1.0 / rate:g} s, expected an off time after "
+                         "each actuation")
+        off = 1.0 / rate - on
+    elif "off_time" in s.table:
+        off = s.quantity("off_time", "time")
+    else:
+        raise s.fail("off_time", "missing, expected duty.off_time or duty.actuation_rate")
+    s.finish()
+    return Duty(on, off)
+
+
 def _read_armature(s: _Section) -> Armature:
     arm = Armature(
         inductance_open=s.quantity("inductance_open", "inductance", positive=True),
@@ -908,7 +982,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
     source = str(path)
     data = _read_toml(path)
     tables = ("coil", "supply", "ambient", "thermal", "pull_in", "hold", "release", "armature",
-              "switch", "freewheel")
+              "switch", "freewheel", "duty")
     _root_sections(source, data, tables, ("board",))
     if board is not None:
         try:
@@ -963,7 +1037,9 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
     if thermal.max_coil_temp <= ambient.max:
         raise s.fail("max_coil_temp", f"{thermal.max_coil_temp:g} degC is not above ambient.max "
                      f"({ambient.max:g} degC), expected the coil's temperature limit")
+    thermal = _read_heat_capacity(s, thermal)
     s.finish()
+    duty = _read_duty(_section(source, data, "duty")) if "duty" in data else None
     # With [armature], the currents the file leaves out come from the force balance.
     need = _mechanics_currents(armature, coil) if armature is not None else None
     derived: list[str] = []
@@ -1034,4 +1110,4 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
                          f"{freewheel.clamp_voltage:g} V is not above supply.max ({supply.max:g} V): "
                          "the clamp would conduct with the switch off")
     return Drive(path.stem, coil, supply, ambient, thermal, pull_in, hold, release, brd, switch,
-                 freewheel, armature, source)
+                 freewheel, armature, source, duty)

@@ -27,7 +27,8 @@ back to 20 degC: ``R(T) = R_ref (1 + alpha_20 (T - 20)) / (1 + alpha_20 (T_ref -
 PWM periodic steady state: the one-period map ``i0 -> i(T)`` is integrated and its fixed
 point found by shooting (``brentq`` on ``i(T) - i0``). Self-heating: the coil temperature
 is the fixed point ``T = T_amb + R_th * P_coil(T)`` with ``P_coil = I_rms^2 R_coil(T)`` from
-that steady state (``brentq`` again).
+that steady state (``brentq`` again); with an on/off cycle and a heat capacity, the
+hottest point of the cycle's periodic orbit (:func:`cycle_coil_temperature`).
 """
 
 from __future__ import annotations
@@ -351,6 +352,51 @@ def step_edges(drive: Drive, fw: Firmware) -> list[tuple[float, float]]:
     return out
 
 
+def cycle_coil_temperature(drive: Drive, supply: float, ambient: float, r_factor: float,
+                           l_factor: float, on_time: float, period: float, peak_time: float) -> float:
+    """Hottest coil (degC) over the periodic steady state of the on/off cycle of ``[duty]``
+    with ``thermal.capacity``: ``C dT/dt = P_on(T) - (T - T_amb) / R_th`` while on,
+    ``P = 0`` while off, integrated by ``solve_ivp`` (LSODA) and its periodic orbit found
+    by shooting (``brentq`` on the one-cycle map). ``P_on(T)`` is one actuation's copper
+    heat over the on-time -- the peak (``peak_time`` s full on from zero), the hold's PWM
+    steady state for the rest, the release from the top of the ripple through the hold's
+    off path -- each integrated here, tabulated at Chebyshev nodes over ambient .. limit +
+    100 K and interpolated by a cubic spline (scipy), to spare thousands of shootings."""
+    import numpy as np
+    from scipy.interpolate import CubicSpline
+
+    cyc, th = drive.duty, drive.thermal
+    t_on, t_off = cyc.on_time, cyc.off_time
+    t_pk = min(peak_time, t_on)
+
+    def p_on(temp: float) -> float:
+        c = circuit(drive, supply, temp, r_factor, l_factor)
+        peak = run(c.on, c.inductance, 0.0, t_pk).square
+        ss = pwm_steady_state(c, on_time, period)
+        release = run(c.hold_off, c.inductance, ss.i_top, 40.0 * c.inductance / c.hold_off.r).square
+        return c.r_coil * (peak + release + ss.rms ** 2 * (t_on - t_pk)) / t_on
+
+    lo, hi = ambient, th.max_coil_temp + 100.0
+    k = np.arange(9)
+    nodes = np.sort(0.5 * (lo + hi) + 0.5 * (hi - lo) * np.cos((2 * k + 1) * np.pi / 18))
+    spline = CubicSpline(nodes, [p_on(t) for t in nodes])
+
+    def seg(on: bool, start: float, duration: float) -> float:
+        def rhs(_t, y):
+            p = float(spline(y[0])) if on else 0.0
+            return [(p - (y[0] - ambient) / th.resistance) / th.capacity]
+        sol = solve_ivp(rhs, (0.0, duration), [start], method=METHOD, rtol=1e-11, atol=1e-9)
+        return float(sol.y[0, -1])
+
+    def gap(start: float) -> float:   # one cycle from the start of an on-time
+        return seg(False, seg(True, start, t_on), t_off) - start
+
+    if gap(hi) > 0.0:
+        return th.max_coil_temp + 1000.0   # no orbit below: far past any limit
+    start = brentq(gap, ambient, hi, xtol=1e-7)
+    return seg(True, start, t_on)
+
+
 def hottest_coil(drive: Drive, fw: Firmware, supplies, r_factor: float, l_factors):
     """Hottest settled coil of this resistance corner under the firmware's hold, at any
     supply and ambient. The settled temperature rises with the ambient (at a stable fixed
@@ -361,8 +407,13 @@ def hottest_coil(drive: Drive, fw: Firmware, supplies, r_factor: float, l_factor
     for v in supplies:
         code = supply_code(drive, v)
         for l in l_factors:
-            t = coil_temperature(drive, v, drive.ambient.max, r_factor, l,
-                                 fw.on_time(code), fw.period_s)
+            if drive.duty is not None and drive.thermal.capacity > 0:   # an on/off cycle
+                t = cycle_coil_temperature(drive, v, drive.ambient.max, r_factor, l,
+                                           fw.on_time(code), fw.period_s,
+                                           fw.peak_ticks[code] / fw.tick_rate)
+            else:
+                t = coil_temperature(drive, v, drive.ambient.max, r_factor, l,
+                                     fw.on_time(code), fw.period_s)
             best = max(best, (t, v, l), key=lambda x: x[0])
     return best
 

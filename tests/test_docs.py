@@ -30,10 +30,10 @@ def test_ci_runs_the_readme_test_command():
 
 
 def test_every_drive_key_is_documented():
-    from coildrive.config import Coil, Hold, PullIn, Supply, Thermal
+    from coildrive.config import Coil, Duty, Hold, PullIn, Supply, Thermal
     doc = (ROOT / "docs" / "file-formats.md").read_text()
     import dataclasses
-    for cls in (Coil, Supply, Thermal, PullIn, Hold):
+    for cls in (Coil, Supply, Thermal, PullIn, Hold, Duty):
         for f in dataclasses.fields(cls):
             assert re.search(rf"^{f.name} = ", doc, re.M), f"{cls.__name__}.{f.name} not in docs/file-formats.md"
 

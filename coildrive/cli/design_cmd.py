@@ -35,9 +35,9 @@ def _run_design(drive_path: Path, board: Optional[str], as_json: bool, header: O
         from ..design.report import print_design
         print_design(result)
     if plot is not None:
-        from ..design import design_waveforms
+        from ..design import design_thermal_curves, design_waveforms
         from ..design.plot import plot_design
-        write_atomic(plot, plot_design(result, design_waveforms(result)))
+        write_atomic(plot, plot_design(result, design_waveforms(result), design_thermal_curves(result)))
         status(f"wrote plot {plot}")
     if not result.ok:
         if header is not None:

@@ -58,4 +58,13 @@ def design_waveforms(design: Design) -> dict:
                               p.l_factor, label=p.label, strict=False)
             for p in design.actuation_points}
 
-__all__ = ["actuation", "design", "design_waveforms", "firmware_setting"]
+def design_thermal_curves(design: Design) -> dict:
+    """The coil temperature held on from a cold start and from a hot restart, by name (see
+    :func:`coildrive.design.thermal_cycle.thermal_curves`); empty without a heat capacity."""
+    t = design.thermal_cycle
+    if t is None or t.cold_start is None:
+        return {}
+    from .thermal_cycle import thermal_curves
+    return thermal_curves(t)
+
+__all__ = ["actuation", "design", "design_thermal_curves", "design_waveforms", "firmware_setting"]

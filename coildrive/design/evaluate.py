@@ -22,9 +22,9 @@ from ..model.rl import decay_current, decay_integrals, decay_time, rise_current,
 from ..model.thermal import settle_temperature
 
 
-def hold_temperature(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
-                     factors: dict | None = None):
-    """Coil temperature in degC after a long hold at ``duty``/``frequency`` at each point
+def hold_power(drive: Drive, supply, r_factor, l_factor, duty, frequency, factors: dict | None = None):
+    """A function of the coil temperature (degC, array over the points) giving the coil's
+    copper loss (W) in the hold's periodic steady state at ``duty``/``frequency``
     (``factors``: the loop's other tolerance factors, see :func:`coildrive.model.circuit.loop`)."""
     factors = factors or {}
 
@@ -32,7 +32,15 @@ def hold_temperature(drive: Drive, supply, ambient, r_factor, l_factor, duty, fr
         lp = loop(drive, supply, temp, r_factor, l_factor, **factors)
         ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
         return ss.rms**2 * lp.r_coil
-    return settle_temperature(ambient, drive.thermal.resistance, power_at)
+    return power_at
+
+
+def hold_temperature(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
+                     factors: dict | None = None):
+    """Coil temperature in degC after a long hold at ``duty``/``frequency`` at each point
+    (``factors``: the loop's other tolerance factors, see :func:`coildrive.model.circuit.loop`)."""
+    return settle_temperature(ambient, drive.thermal.resistance,
+                              hold_power(drive, supply, r_factor, l_factor, duty, frequency, factors))
 
 
 def required_duty(drive: Drive, supply, ambient, r_factor, l_factor, frequency,

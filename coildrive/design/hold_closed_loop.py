@@ -46,6 +46,7 @@ from .figures import (adc_thresholds, corners_of, hold_spread, loss_figures, pul
                       release_result, worst)
 from .hold_voltage import _losses, _split_result, closing_checks, plot_points
 from .peak import plan_peak, shortest_peak_current
+from .thermal_cycle import refuse_cycle
 from .result import Check, ClosedLoopResult, Design, DutyTable, HoldResult, TimerResult
 from .timer import solve_timer
 from .turnoff import turn_offs
@@ -55,6 +56,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     if samples > 0:
         raise InputError("--samples", "", "the Monte Carlo covers the fixed and supply-table holds "
                          "only (this drive has hold.regulation = \"closed_loop\")")
+    refuse_cycle(drive, 'regulation = "closed_loop"')
     if drive.pull_in.compensate:
         raise InputError(drive.source, "pull_in.compensate", "a supply-compensated peak is designed "
                          "for the fixed and supply-table holds; leave it out with regulation = "

@@ -57,6 +57,7 @@ from .figures import (adc_thresholds, corners_of, hold_spread, loss_figures, pul
 from .peak import plan_peak, shortest_peak_current
 from .turnoff import turn_offs
 from .result import Check, CurrentModeResult, Design, HoldResult, Thresholds
+from .thermal_cycle import refuse_cycle
 from .timer import solve_timer
 
 #: Upper end of the allowed switching range when neither ``hold.max_frequency`` nor the
@@ -296,6 +297,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     if samples > 0:
         raise InputError("--samples", "", "the Monte Carlo covers the voltage-mode hold only "
                          "(this drive has hold.mode = \"current\")")
+    refuse_cycle(drive, 'mode = "current"')
     if drive.pull_in.compensate:
         raise InputError(drive.source, "pull_in.compensate", "a supply-compensated peak is "
                          "designed for voltage-mode holds only; leave it out with mode = \"current\"")

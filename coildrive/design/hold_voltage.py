@@ -41,8 +41,14 @@ from .mechanics import armature_checks, armature_result
 from .peak import plan_peak, shortest_peak_current
 from .regulation import HoldPlan, coil_power_at, solve_hold, table_lookup, table_supplies
 from .result import ActuationPoint, Design, DutyTable, HoldResult, SplitDecayResult, TimerResult
+from .thermal_cycle import (cycle_caution, cycling, thermal_cautions, thermal_checks,
+                            thermal_result)
 from .timer import TimerSetting, solve_timer
 from .turnoff import turn_offs
+
+
+#: Rounds of the peak <-> cycle heat iteration (an on/off cycle only; it settles in two or three).
+MAX_PEAK_ROUNDS = 8
 
 
 def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
@@ -57,31 +63,39 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                         board.timer.prescalers)
     f_hold = timer.frequency_hz
     period = timer.period_ticks
-    plan = solve_hold(drive, timer)
-    env = plan.env
-    compare = plan.fixed_compare
-    duty = compare / period
-    d_low, d_high = plan.compare_low / period, plan.compare_high / period
-    at = dict(coil_temp=env.coil_temp, factors=env.factors())
+    # With an on/off cycle the peak heats the coil too: the hold and the peak are solved
+    # again with the peak's length until it no longer grows (a hotter coil only lengthens it).
+    peak_time = 0.0
+    for _ in range(MAX_PEAK_ROUNDS):
+        plan = solve_hold(drive, timer, peak_time)
+        env = plan.env
+        compare = plan.fixed_compare
+        duty = compare / period
+        d_low, d_high = plan.compare_low / period, plan.compare_high / period
+        at = dict(coil_temp=env.coil_temp, factors=env.factors())
 
-    # Pull-in on the envelope (the hot coil at the lowest supply is the worst), then the
-    # peak by time and by force (design/peak.py).
-    first = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor, d_low, f_hold, 0.0, **at)
-    entry_res = table_args = None
-    code_low, code_high = (supply_codes(drive, env.supply) if board.supply_sense is not None
-                           else (np.zeros(len(env), int), np.zeros(len(env), int)))
-    if drive.pull_in.compensate:
-        volts, codes, design_v = table_supplies(drive)
-        m, tol = len(codes), plan.tol
-        hot = np.where(np.isfinite(plan.hot_temp), plan.hot_temp, drive.thermal.max_coil_temp)
-        t = tol.take(np.tile(np.arange(len(tol)), m))
-        entry_res = evaluate(drive, np.repeat(design_v, len(tol)), drive.ambient.max, t.r_factor,
-                             t.l_factor, duty, f_hold, 0.0, coil_temp=np.tile(hot, m),
-                             factors={"diode_factor": t.diode_factor, "fast_factor": t.fast_factor,
-                                      "sense_factor": t.sense_factor})
-        table_args = dict(table_codes=codes, table_volts=volts, table_design=design_v)
-    pk = plan_peak(drive, env, first, entry_res, code_low=code_low, code_high=code_high,
-                   **(table_args or {}))
+        # Pull-in on the envelope (the hot coil at the lowest supply is the worst), then the
+        # peak by time and by force (design/peak.py).
+        first = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor, d_low, f_hold, 0.0, **at)
+        entry_res = table_args = None
+        code_low, code_high = (supply_codes(drive, env.supply) if board.supply_sense is not None
+                               else (np.zeros(len(env), int), np.zeros(len(env), int)))
+        if drive.pull_in.compensate:
+            volts, codes, design_v = table_supplies(drive)
+            m, tol = len(codes), plan.tol
+            hot = np.where(np.isfinite(plan.hot_temp), plan.hot_temp, drive.thermal.max_coil_temp)
+            t = tol.take(np.tile(np.arange(len(tol)), m))
+            entry_res = evaluate(drive, np.repeat(design_v, len(tol)), drive.ambient.max, t.r_factor,
+                                 t.l_factor, duty, f_hold, 0.0, coil_temp=np.tile(hot, m),
+                                 factors={"diode_factor": t.diode_factor, "fast_factor": t.fast_factor,
+                                          "sense_factor": t.sense_factor})
+            table_args = dict(table_codes=codes, table_volts=volts, table_design=design_v)
+        pk = plan_peak(drive, env, first, entry_res, code_low=code_low, code_high=code_high,
+                       **(table_args or {}))
+        longer = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate
+        if not cycling(drive) or longer <= peak_time:
+            break
+        peak_time = longer
     short, long_ = pk.short_time, pk.long_time
     # the weakest hold with the shortest peak; the most current with the longest
     res_low = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor, d_low, f_hold,
@@ -109,7 +123,9 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                   ripple_a=float(max(np.max(res.hold.ripple), np.max(res_low.hold.ripple))),
                   coil_power_w=coil_power_at(drive, plan, k_heat, f_hold, period),
                   coil_temp_c=float(plan.hot_temp[k_hot]),
-                  hottest_corner=plan.heat.label(k_heat) + f", settles at {plan.hot_temp[k_hot]:.4g} degC",
+                  hottest_corner=plan.heat.label(k_heat) + (
+                      f", the hottest over the on/off cycle {plan.hot_temp[k_hot]:.4g} degC" if cycling(drive)
+                      else f", settles at {plan.hot_temp[k_hot]:.4g} degC"),
                   discontinuous_corners=int(np.sum(res_low.hold.dcm | res.hold.dcm)),
                   coil_power_corner=plan.heat.label(k_heat))
     hold = HoldResult(
@@ -123,6 +139,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     offs = turn_offs(drive, env, res, peak_end, thresholds.trip_current_a)
     release = release_result(drive, env, res, offs)
     pull_in = pull_in_result(drive, env, res, pk, shortest_peak_current(drive, res_low, short))
+    thermal = thermal_result(drive, plan, f_hold, period, peak_time, offs, hold.freewheel_power_w,
+                             hold.freewheel_elements_w)
     timer_result = TimerResult(clock_hz=board.timer.clock, bits=board.timer.bits,
                                prescaler=timer.prescaler, period_ticks=period,
                                compare_ticks=compare, frequency_hz=f_hold,
@@ -134,12 +152,17 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     split = _split_result(drive, timer, int(np.min(plan.compare_low))) if split_decay(drive) else None
     arm, more, notes = closing_checks(drive, env, res_low, hold, loss, release, split)
     checks += more
+    checks += thermal_checks(drive, pull_in.peak_time_s, thermal)
+    if thermal is not None and thermal.cycle is not None:
+        notes[2] = cycle_caution(thermal)   # the envelope's hot coil is the cycle's
+    notes += thermal_cautions(thermal)
     points = plot_points(drive, pk, env, nom, res_low, f_hold)
     out = Design(drive=drive, pull_in=pull_in, hold=hold, release=release, timer=timer_result,
                  adc=thresholds, duty_table=table, corners=corners, nominal=nominal,
                  checks=checks, cautions=notes, monte_carlo=None,
                  input_hash=drive.input_hash(), worst_corner_index=pk.k_pull, armature=arm,
-                 split_decay=split, actuation_points=points, peak_table=pk.table)
+                 split_decay=split, actuation_points=points, peak_table=pk.table,
+                 thermal_cycle=thermal)
     if samples > 0:
         from .montecarlo import monte_carlo
 

@@ -3,7 +3,9 @@
 Supply and ambient are drawn uniformly over their ranges; coil resistance and
 inductance uniformly within their tolerance, or normally with the tolerance read as
 3 sigma (clipped at the tolerance) when the drive file says ``tolerance_distribution =
-"normal"``. Each sample is evaluated with the same closed-form model as the corners.
+"normal"``. Each sample is evaluated with the same closed-form model as the corners (the
+coil at the temperature a long hold settles at there, or with an on/off cycle and a heat
+capacity the hottest over the cycle).
 
 The samples are evaluated :data:`CHUNK` at a time into preallocated arrays of the five
 figures: the model's temporaries (dozens of arrays per point) then stay the size of one
@@ -18,6 +20,7 @@ import numpy as np
 
 from ..config import Drive
 from .evaluate import evaluate
+from .thermal_cycle import cycle_states, cycling
 
 PERCENTILES = (1.0, 50.0, 99.0)
 #: Samples evaluated together (a few MB of temporaries; measured best on 2 cores with
@@ -59,15 +62,23 @@ def monte_carlo(drive: Drive, duty: float, frequency: float, peak_time: float, s
     lf = _factors(rng, c.inductance_tolerance, samples, c.tolerance_distribution)
     duty_of = duty if callable(duty) else (lambda s: duty)
     peak_of = peak_time if callable(peak_time) else (lambda s: peak_time)
+    def coil_temp(s, amb, r, l):
+        """With an on/off cycle and a heat capacity, each sample's hottest coil over the
+        cycle; else ``None``: evaluate's continuous hold."""
+        if not cycling(drive):
+            return None
+        return cycle_states(drive, s, amb, r, l, duty_of(s), frequency, None, peak_of(s)).hottest
+
     if chunk is None:
         values = _figures(evaluate(drive, supply, ambient, rf, lf, duty_of(supply), frequency,
-                                   peak_of(supply)))
+                                   peak_of(supply), coil_temp=coil_temp(supply, ambient, rf, lf)))
     else:
         values = tuple(np.empty(samples) for _ in FIGURES)
         for start in range(0, samples, chunk):
             sl = slice(start, min(start + chunk, samples))
             s = supply[sl]
-            res = evaluate(drive, s, ambient[sl], rf[sl], lf[sl], duty_of(s), frequency, peak_of(s))
+            res = evaluate(drive, s, ambient[sl], rf[sl], lf[sl], duty_of(s), frequency, peak_of(s),
+                           coil_temp=coil_temp(s, ambient[sl], rf[sl], lf[sl]))
             for out, got in zip(values, _figures(res)):
                 out[sl] = got
     supply_all = supply

@@ -6,17 +6,20 @@ from ..plotting import agg_figure, png_bytes
 from .result import Design
 
 
-def plot_design(d: Design, waveforms: dict) -> bytes:
+def plot_design(d: Design, waveforms: dict, thermal: dict | None = None) -> bytes:
     """PNG bytes: coil current at the nominal and the worst pull-in corner, phases marked.
 
     ``waveforms``: the actuations to draw by name, as
     :func:`coildrive.design.design_waveforms` makes them (``"worst"`` gives the phases).
+    ``thermal``: the coil temperature held on from a cold start and a hot restart, as
+    :func:`coildrive.design.design_thermal_curves` makes them, in a panel below (none:
+    no panel).
     """
     peak = ("pull-in not reached" if d.pull_in.peak_time_s is None else
             f"peak {d.pull_in.peak_time_s * 1e3:.3g} ms")
     title = (f"{d.drive.name} on {d.drive.board.name}: duty {d.hold.duty:.3f} at "
              f"{d.hold.frequency_hz / 1e3:.4g} kHz ({d.hold.regulation}), {peak}")
-    return _plot(d, waveforms, "worst", title)
+    return _plot(d, waveforms, "worst", title, thermal=thermal)
 
 
 def plot_actuation(d: Design, w, title: str) -> bytes:
@@ -25,14 +28,23 @@ def plot_actuation(d: Design, w, title: str) -> bytes:
     return _plot(d, {"simulated": w}, "simulated", title, velocity=True)
 
 
-def _plot(d: Design, waveforms: dict, phases: str, title: str, velocity: bool = False) -> bytes:
+def _plot(d: Design, waveforms: dict, phases: str, title: str, velocity: bool = False,
+          thermal: dict | None = None) -> bytes:
     """The current of ``waveforms`` (by name) with the phases of ``waveforms[phases]``, the
     pull-in/hold/drop-out levels, and the armature panel when the design has one."""
     moving = d.armature is not None
-    fig = agg_figure(figsize=(9, 7.5 if moving else 5), dpi=110)
-    if moving:
+    if thermal:
+        fig = agg_figure(figsize=(9, (7.5 if moving else 5) + 3.5), dpi=110)
+        gs = fig.add_gridspec(3 if moving else 2, 1, height_ratios=[3, 2, 2.5] if moving else [3, 2.5])
+        ax = fig.add_subplot(gs[0])
+        if moving:
+            ax_x = fig.add_subplot(gs[1], sharex=ax)
+        _thermal_panel(d, thermal, fig.add_subplot(gs[-1]))
+    elif moving:
+        fig = agg_figure(figsize=(9, 7.5), dpi=110)
         ax, ax_x = fig.subplots(2, 1, sharex=True, gridspec_kw={"height_ratios": [3, 2]})
     else:
+        fig = agg_figure(figsize=(9, 5), dpi=110)
         ax = fig.add_subplot(1, 1, 1)
     colours = {"nominal": "tab:blue", "worst": "tab:red", "simulated": "tab:blue"}
     for key, w in waveforms.items():
@@ -110,3 +122,29 @@ def _velocity_trace(waveforms: dict, ax_x, colours: dict) -> None:
     for key, w in waveforms.items():
         ax_v.plot(w.time * 1e3, w.velocity, lw=0.7, ls=":", color=colours.get(key))
     ax_v.set_ylabel("velocity [m/s] (dotted; < 0 closing)", fontsize=8)
+
+
+def _thermal_panel(d: Design, curves: dict, ax) -> None:
+    """The coil temperature held on from a cold start and from a hot restart (the warm coil
+    of the on/off cycle), the limit, the cycle's band and each time to the limit."""
+    t = d.thermal_cycle
+    longest = max(float(c[0][-1]) for c in curves.values())
+    minutes = longest >= 120.0
+    scale, unit = (1 / 60.0, "min") if minutes else (1.0, "s")
+    colours = {"cold start": "tab:blue", "hot restart": "tab:red"}
+    for name, (time, temp, t_lim) in curves.items():
+        c = colours.get(name)
+        when = "never reaches the limit" if t_lim is None else f"limit after {t_lim * scale:.3g} {unit}"
+        ax.plot(time * scale, temp, color=c, lw=1.2, label=f"held on, {name} ({when})")
+        if t_lim is not None:
+            ax.axvline(t_lim * scale, color=c, ls=":", lw=0.8)
+    ax.axhline(t.max_coil_temp_c, color="k", ls="--", lw=0.8)
+    ax.text(0, t.max_coil_temp_c, " coil limit", va="bottom", fontsize=8)
+    if t.cycle is not None:
+        ax.axhspan(t.cycle["coolest_c"], t.cycle["hottest_c"], color="tab:orange", alpha=0.3,
+                   label=f"on/off cycle {t.cycle['coolest_c']:.1f}..{t.cycle['hottest_c']:.1f} degC")
+    ax.set_xlabel(f"time held on [{unit}]")
+    ax.set_ylabel("coil temperature [degC]")
+    ax.set_title(f"coil held on: time constant {t.time_constant_s:.4g} s", fontsize=9)
+    ax.grid(alpha=0.3)
+    ax.legend(fontsize=7, loc="lower right")

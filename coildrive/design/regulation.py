@@ -33,6 +33,7 @@ from .envelope import (Envelope, HeatingGrid, Tolerances, bracket_tops, envelope
 from .evaluate import hold_temperature
 from .figures import adc_code
 from .result import DutyTable
+from .thermal_cycle import cycle_states, cycling
 from .timer import TimerSetting
 
 #: Entries in the supply-compensated duty table (and the peak table).
@@ -73,9 +74,17 @@ def _finite(drive: Drive, temps) -> np.ndarray:
     return np.where(np.isfinite(temps), temps, drive.thermal.max_coil_temp)
 
 
-def _heat(drive: Drive, heat: HeatingGrid, duty, frequency: float, count: int):
-    temps = hold_temperature(drive, heat.supply, heat.ambient, heat.tol.r_factor, heat.tol.l_factor,
-                             duty, frequency, _factors(heat.tol))
+def _heat(drive: Drive, heat: HeatingGrid, duty, frequency: float, count: int,
+          peak_time: float = 0.0):
+    """Settled coil temperatures at the heating points under the hold ``duty``: after a
+    continuous hold, or with an on/off cycle and a heat capacity the hottest over the
+    cycle (:mod:`coildrive.design.thermal_cycle`, with a peak of ``peak_time`` s)."""
+    if cycling(drive):
+        temps = cycle_states(drive, heat.supply, heat.ambient, heat.tol.r_factor, heat.tol.l_factor,
+                             duty, frequency, _factors(heat.tol), peak_time).hottest
+    else:
+        temps = hold_temperature(drive, heat.supply, heat.ambient, heat.tol.r_factor,
+                                 heat.tol.l_factor, duty, frequency, _factors(heat.tol))
     hot, where = hottest(heat, temps, count)
     return temps, hot, where
 
@@ -94,8 +103,9 @@ def table_supplies(drive: Drive) -> tuple[np.ndarray, list[int], np.ndarray]:
     return volts, codes, design_v
 
 
-def solve_hold(drive: Drive, timer: TimerSetting) -> HoldPlan:
-    """The hold of ``drive`` under its declared regulation (see the module docstring)."""
+def solve_hold(drive: Drive, timer: TimerSetting, peak_time: float = 0.0) -> HoldPlan:
+    """The hold of ``drive`` under its declared regulation (see the module docstring);
+    ``peak_time`` (s): the peak each actuation of an on/off cycle heats the coil with."""
     f = timer.frequency_hz
     period = timer.period_ticks
     target = drive.hold.current
@@ -123,7 +133,7 @@ def solve_hold(drive: Drive, timer: TimerSetting) -> HoldPlan:
             new = _monotone(drive, tol, hot, design_v, new, period, f)
             low, _ = supply_codes(drive, heat.supply)
             heat_compare = new[table_index(codes, low)]
-            temps, new_hot, where = _heat(drive, heat, heat_compare / period, f, n)
+            temps, new_hot, where = _heat(drive, heat, heat_compare / period, f, n, peak_time)
             settled = compares is not None and np.array_equal(new, compares) and \
                 np.all(np.abs(_finite(drive, new_hot) - _finite(drive, hot)) < TEMP_TOL)
             compares, hot = new, np.maximum(new_hot, drive.ambient.max)
@@ -145,11 +155,11 @@ def solve_hold(drive: Drive, timer: TimerSetting) -> HoldPlan:
             need = duty_for_mean(target, f, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
             if np.any(np.isnan(need)):
                 reachable, duty = False, 1.0
-                temps, hot, where = _heat(drive, heat, duty, f, n)
+                temps, hot, where = _heat(drive, heat, duty, f, n, peak_time)
                 hot = np.maximum(hot, drive.ambient.max)
                 break
             new = float(np.max(need))
-            temps, new_hot, where = _heat(drive, heat, new, f, n)
+            temps, new_hot, where = _heat(drive, heat, new, f, n, peak_time)
             settled = abs(new - duty) < 1e-12 and \
                 np.all(np.abs(_finite(drive, new_hot) - _finite(drive, hot)) < TEMP_TOL)
             duty, hot = new, np.maximum(new_hot, drive.ambient.max)
@@ -158,7 +168,7 @@ def solve_hold(drive: Drive, timer: TimerSetting) -> HoldPlan:
         fixed = min(period, max(1, math.ceil(duty * period - 1e-9)))
         # whole counts: raise until every corner holds with the heat that compare causes
         while reachable and fixed < period:
-            temps, hot2, where2 = _heat(drive, heat, fixed / period, f, n)
+            temps, hot2, where2 = _heat(drive, heat, fixed / period, f, n, peak_time)
             env2 = envelope(drive, tol, np.maximum(hot2, drive.ambient.max))
             lp = loop(drive, env2.supply, _finite(drive, env2.coil_temp), env2.r_factor,
                       env2.l_factor, **env2.factors())
@@ -168,7 +178,7 @@ def solve_hold(drive: Drive, timer: TimerSetting) -> HoldPlan:
             if np.min(mean) >= target:
                 break
             fixed += 1
-        temps, hot_s, where = _heat(drive, heat, fixed / period, f, n)
+        temps, hot_s, where = _heat(drive, heat, fixed / period, f, n, peak_time)
         hot = np.maximum(hot_s, drive.ambient.max)
         env = envelope(drive, tol, hot)
         compare_low = compare_high = np.full(len(env), fixed, int)

@@ -9,6 +9,7 @@ from rich.table import Table
 from ..console import print_cautions, print_verdict
 from ..units import format_si
 from .result import ELEMENT_NAMES, Design
+from .thermal_cycle import duration_text
 
 
 def _ms(seconds: float) -> str:
@@ -38,6 +39,7 @@ def summary_table(d: Design) -> Table:
         ("coil power / temperature", f"{h.coil_power_w:.3g} W / " + (f"{h.coil_temp_c:.1f} degC"
                                                                      if h.coil_temp_c == h.coil_temp_c and h.coil_temp_c < 1e300 else "runaway"),
          f"hottest coil, both at {h.coil_power_corner or h.hottest_corner}"),
+        *_thermal_rows(d),
         *_loss_rows(d),
         ("release time", _ms(r.time_s), f"to {r.dropout_current_a:.4g} A via {r.freewheel}; zero after {_ms(r.zero_time_s)}"),
         *_turn_off_rows(d),
@@ -105,6 +107,42 @@ def _turn_off_rows(d: Design) -> list:
     return [(f"turn-off: {o['event']}", format_si(o["energy_j"], "J"),
              f"from {o['current_a']:.4g} A ({o['current_corner']}); switch {o['switch_voltage_v']:.4g} V")
             for o in d.release.turn_offs]
+
+
+def _thermal_rows(d: Design) -> list:
+    """With ``[duty]`` or a heat capacity: the cycle, the heat of one actuation, the
+    freewheel's average power and the on-time to the coil's limit."""
+    t = d.thermal_cycle
+    if t is None:
+        return []
+    rows = []
+    if t.on_time_s is not None:
+        rows.append(("on/off cycle", f"{duration_text(t.on_time_s)} / {duration_text(t.off_time_s)}",
+                     f"{t.actuation_rate_hz * 60:.4g} actuations a minute"))
+    if t.capacity_j_k is not None:
+        rows.append(("coil heat capacity", f"{t.capacity_j_k:.4g} J/K",
+                     f"time constant {duration_text(t.time_constant_s)} with {d.drive.thermal.resistance:g} K/W"))
+    c = t.cycle
+    if c is not None:
+        rows.append(("coil over the cycle", f"{c['coolest_c']:.1f} .. {c['hottest_c']:.1f} degC",
+                     f"periodic steady state at {c['corner']}; a continuous hold would settle at "
+                     f"{t.continuous_hold_c:.1f} degC"))
+        rows.append(("  heat per actuation", format_si(c['peak_energy_j'] + c['hold_energy_j']
+                                                       + c['release_energy_j'], "J"),
+                     f"in the copper: peak {format_si(c['peak_energy_j'], 'J')} + hold "
+                     f"{format_si(c['hold_energy_j'], 'J')} + release {format_si(c['release_energy_j'], 'J')}"))
+    fw = t.freewheel
+    if fw is not None:
+        parts = ", ".join(f"{ELEMENT_NAMES[n]} {format_si(w, 'W')}" for n, w in fw["release_elements_w"].items())
+        rows.append(("freewheel average power", format_si(fw["average_power_w"], "W"),
+                     f"releases {format_si(fw['release_energy_j'], 'J')} x {t.actuation_rate_hz:.4g}/s = "
+                     f"{format_si(fw['release_power_w'], 'W')} ({parts}) + hold share "
+                     f"{format_si(fw['hold_power_w'], 'W')}"))
+    for name, s in (("cold start", t.cold_start), ("warm start", t.warm_start)):
+        if s is not None:
+            rows.append((f"on-time to {t.max_coil_temp_c:g} degC ({name})", duration_text(s["time_to_limit_s"]),
+                         f"held on from {s['start_c']:.1f} degC at {s['corner']}"))
+    return rows
 
 
 def _loss_rows(d: Design) -> list:

@@ -421,6 +421,39 @@ class PeakTable:
 
 
 @dataclass(frozen=True)
+class ThermalCycleResult:
+    """The coil over its on/off cycle (``design --json`` key ``thermal_cycle``, present
+    when the file gives ``[duty]`` or ``thermal.capacity``/``time_constant``). SI, degC.
+
+    ``cycle`` (with both): the periodic steady state at its hottest heating point --
+    ``hottest_c`` (end of an on-time; the envelope's hot coil), ``coolest_c`` (start of
+    one), the mean coil power over an on-time there and the copper heat of one
+    actuation's peak, hold and release (J). ``freewheel`` (with ``[duty]``): the end of
+    hold's turn-off energy into the freewheel elements (J, worst corner) x the actuation
+    rate, the hold's freewheel power (worst corner) x the hold's share of the cycle, and
+    their sum (``average_power_w``); per element ``elements_average_w``. ``cold_start`` / ``warm_start`` (with a heat
+    capacity; the warm one with ``[duty]``): the coil held on from the ambient / from the
+    cycle's coolest point, at the heating point that reaches ``max_coil_temp_c`` first:
+    ``time_to_limit_s`` (``None``: never), the start, and the heat line it climbs under
+    (``heat_w + heat_slope_w_k x (T - ambient_c)``, from ``start_rise_k`` above ambient).
+    ``continuous_hold_c``: what a continuous hold settles at, for comparison.
+    """
+
+    max_coil_temp_c: float
+    continuous_hold_c: float
+    continuous_hold_corner: str
+    capacity_j_k: float | None
+    time_constant_s: float | None
+    on_time_s: float | None
+    off_time_s: float | None
+    actuation_rate_hz: float | None
+    cycle: dict | None
+    freewheel: dict | None
+    cold_start: dict | None
+    warm_start: dict | None
+
+
+@dataclass(frozen=True)
 class Design:
     """One design result: every output (table, JSON, header, plot) is made from this."""
 
@@ -443,6 +476,7 @@ class Design:
     peak_table: PeakTable | None = None
     armature: ArmatureResult | None = None
     split_decay: SplitDecayResult | None = None
+    thermal_cycle: ThermalCycleResult | None = None
 
     @property
     def ok(self) -> bool:
@@ -484,6 +518,8 @@ class Design:
             out["current_mode"] = current_mode
         if closed_loop is not None:
             out["closed_loop"] = closed_loop
+        if self.thermal_cycle is not None:
+            out["thermal_cycle"] = asdict(self.thermal_cycle)
         if self.monte_carlo is not None:
             out["monte_carlo"] = self.monte_carlo
         return json_ready(out)

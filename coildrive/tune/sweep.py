@@ -39,6 +39,7 @@ import numpy as np
 from ..config import Drive, Hold, Timer
 from ..design.corners import CornerGrid, corner_grid
 from ..design.hold_voltage import hold_figures
+from ..design.thermal_cycle import cycle_states, cycling
 from ..design.timer import MIN_PERIOD_TICKS, TimerSetting, solve_timer
 from ..errors import InputError
 from ..jsondoc import json_ready
@@ -46,6 +47,7 @@ from ..model.circuit import COPPER_ALPHA, loop
 from ..model.losses import HoldLosses, hold_losses
 from ..model.pwm import duty_for_mean, pwm_steady_state
 from ..model.thermal import CEILING_C, closed_form_temperature, coil_r20
+from ..model.thermal_cycle import closed_form_cycle_temperature
 
 #: Lower end of the sweep by default: the upper limit of hearing (common practice).
 DEFAULT_MIN_FREQUENCY = 20_000.0
@@ -240,8 +242,17 @@ def settle_voltage_mode(drive: Drive, supply, ambient, r_factor, l_factor, duty,
     :func:`coildrive.design.evaluate.hold_temperature`) by Newton steps with the slope
     ``dP/dT = P (dR_c/dT) (1/R_c - 2/R_on)`` (a fixed-duty coil current scales as
     ``1/R_on``), to :data:`TEMP_TOL`. Points that run away or do not settle get ``inf``
-    (the loop and steady state there are at ``max_coil_temp``, as in evaluate).
+    (the loop and steady state there are at ``max_coil_temp``, as in evaluate). With an
+    on/off cycle and a heat capacity, the hottest coil over the cycle instead
+    (:func:`coildrive.design.thermal_cycle.cycle_states`, the hold's heat only: the sweep
+    sizes no peak).
     """
+    if cycling(drive):   # an on/off cycle with a heat capacity: its hottest coil
+        temp = cycle_states(drive, supply, ambient, r_factor, l_factor, duty, frequency).hottest
+        lp = loop(drive, supply, np.where(np.isfinite(temp), temp, drive.thermal.max_coil_temp),
+                  r_factor, l_factor)
+        return temp, lp, pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
+                                          lp.inductance)
     r_th = drive.thermal.resistance
     a = COPPER_ALPHA
     dr_dt = coil_r20(drive, r_factor) * a
@@ -415,9 +426,10 @@ def required_duty_points(drive: Drive, grid: CornerGrid, corners: np.ndarray, ta
     rf = np.tile(grid.r_factor[corners], n)
     lf = np.tile(grid.l_factor[corners], n)
     out = np.full(tgt.size, np.nan)
+    settled = closed_form_cycle_temperature if cycling(drive) else closed_form_temperature
     for s in range(0, tgt.size, CHUNK):
         sl = slice(s, s + CHUNK)
-        temp = closed_form_temperature(drive, amb[sl], rf[sl], tgt[sl])
+        temp = settled(drive, amb[sl], rf[sl], tgt[sl])
         duty = np.full(temp.size, np.nan)
         for _ in range(max_iter):
             ok = np.isfinite(temp)
@@ -426,7 +438,7 @@ def required_duty_points(drive: Drive, grid: CornerGrid, corners: np.ndarray, ta
                                  start=duty)
             ss = pwm_steady_state(np.nan_to_num(duty), f[sl], lp.v_on, lp.r_on, lp.r_off, lp.v_off,
                                   lp.inductance)
-            new = closed_form_temperature(drive, amb[sl], rf[sl], ss.rms)
+            new = settled(drive, amb[sl], rf[sl], ss.rms)
             moved = np.abs(new - temp)
             temp = new
             if not np.any(np.isfinite(moved) & (moved >= TEMP_TOL)):

@@ -1,0 +1,276 @@
+"""The coil over its on/off cycle: ``[duty]`` and ``[thermal] capacity`` (or ``time_constant``).
+
+With both given, each actuation heats the coil for ``duty.on_time`` -- its peak (full
+on from zero current, the design's peak length), its hold (the hold the firmware runs,
+in its periodic steady state) and the copper's share of its release -- and lets it cool
+for ``duty.off_time``; the hottest coil over that cycle's periodic steady state
+(:mod:`coildrive.model.thermal_cycle`) replaces the continuous-hold temperature in the
+envelope. The peak and release last milliseconds, far below the thermal time constant:
+their heat is spread over the on-time (putting the release's heat before the turn-off can
+only raise the computed peak temperature). With a heat capacity the design also gives the
+longest continuous on-time before the coil reaches ``thermal.max_coil_temp`` from a cold
+coil (the ambient) and from a warm one (the cycle's coolest point, the start of an
+on-time); with a ``[duty]`` the freewheel elements' average power from the release energy
+x the actuation rate. Units: s, W, J, J/K, degC.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from ..config import Drive
+from ..model.circuit import loop
+from ..model.pwm import pwm_steady_state
+from ..model.rl import decay_integrals, decay_time, rise_integrals
+from ..model.thermal_cycle import chord, cycle_steady_state, heating, time_to_rise
+from ..units import format_si
+from .evaluate import hold_power, hold_temperature
+from .result import ELEMENT_NAMES, Check, ThermalCycleResult
+
+
+def cycling(drive: Drive) -> bool:
+    """True when the file gives an on/off cycle and a heat capacity: the envelope then
+    takes the hottest coil over the cycle."""
+    return drive.duty is not None and drive.thermal.capacity > 0 and drive.thermal.resistance > 0
+
+
+def refuse_cycle(drive: Drive, hold: str) -> None:
+    """Raise an :class:`~coildrive.errors.InputError` when ``drive`` gives an on/off cycle
+    or a heat capacity to a hold whose design does not model them (``hold``: the setting
+    that names that hold, e.g. ``mode = "current"``)."""
+    from ..errors import InputError
+
+    for key, given in (("duty", drive.duty is not None),
+                       ("thermal.capacity", drive.thermal.capacity > 0)):
+        if given:
+            raise InputError(drive.source, key, "an on/off cycle's coil temperature is modelled "
+                             "for the fixed and supply-table holds only; leave [duty] and "
+                             f"thermal.capacity / time_constant out with {hold}")
+
+
+def peak_inductance(drive: Drive, lp):
+    """Inductance (H) of the peak's heat: the loop's, or with an ``[armature]`` the open
+    one (same tolerance factor). While the gap closes ``L(x) di/dt <= V - R i``, so the rise
+    through the open inductance bounds the moving armature's current -- and its heat --
+    from above."""
+    if drive.armature is None:
+        return lp.inductance
+    return lp.inductance * drive.armature.inductance_open / drive.armature.inductance_closed
+
+
+def on_energies(drive: Drive, supply, r_factor, l_factor, duty, frequency, factors: dict,
+                peak_time):
+    """A function of the coil temperature (degC, array) giving the coil's copper heat of
+    one actuation, ``(peak J, hold J, release J)``: the peak full on from zero for
+    ``min(peak_time, on_time)`` s (through :func:`peak_inductance`; ``peak_time`` may be
+    an array over the points), the hold's periodic steady state for the rest of the
+    on-time, the release from the top of the hold ripple to zero through the hold's
+    freewheel path (with split decay the slow one: the longer decay, the more heat)."""
+    t_on = drive.duty.on_time
+    t_pk = np.minimum(peak_time, t_on)
+    t_hold = t_on - t_pk
+
+    def at(temp):
+        lp = loop(drive, supply, temp, r_factor, l_factor, **factors)
+        ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
+        _, s_pk = rise_integrals(t_pk, 0.0, lp.v_on, lp.r_on, peak_inductance(drive, lp))
+        t0 = decay_time(0.0, ss.i_max, lp.r_off, lp.v_off, lp.inductance)
+        _, s_rel = decay_integrals(t0, ss.i_max, lp.r_off, lp.v_off, lp.inductance)
+        return lp.r_coil * s_pk, ss.rms**2 * lp.r_coil * t_hold, lp.r_coil * s_rel
+    return at
+
+
+def cycle_states(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
+                 factors: dict | None = None, peak_time=0.0):
+    """The cycle's periodic steady state at each point
+    (:class:`~coildrive.model.thermal_cycle.CycleState`): the on-time's mean power is the
+    actuation's copper heat (:func:`on_energies`) over ``duty.on_time``."""
+    energies = on_energies(drive, supply, r_factor, l_factor, duty, frequency, factors or {},
+                           peak_time)
+    t_on = drive.duty.on_time
+
+    def power_at(temp):
+        return sum(energies(temp)) / t_on
+    th = drive.thermal
+    return cycle_steady_state(ambient, power_at, t_on, drive.duty.off_time, th.resistance, th.capacity)
+
+
+def _start(drive: Drive, power_at, peak_at, start, ambient, label):
+    """Held on from ``start`` degC at each point: the time to the limit (the chord of the
+    hold's power over ``start .. max_coil_temp``; the peak's heat added to the start), the
+    shortest over the points, as the JSON's ``cold_start`` / ``warm_start``."""
+    th = drive.thermal
+    limit = th.max_coil_temp
+    start = np.where(np.isfinite(start), start, limit)
+    heat, slope = chord(power_at, start, np.maximum(start, limit), ambient)
+    theta0 = start - ambient + peak_at(start) / th.capacity
+    t = time_to_rise(theta0, limit - ambient, heat, slope, th.resistance, th.capacity)
+    if np.all(np.isinf(t)):   # never: name the point that comes closest
+        lam = (1.0 / th.resistance - slope) / th.capacity
+        with np.errstate(divide="ignore", invalid="ignore"):
+            settle = np.where(lam > 0, heat / (th.capacity * lam), np.inf)
+        k = int(np.argmax(settle))
+    else:
+        k = int(np.argmin(t))
+    return {"start_c": float(start[k]), "ambient_c": float(ambient[k]),
+            "start_rise_k": float(theta0[k]), "heat_w": float(heat[k]),
+            "heat_slope_w_k": float(slope[k]),
+            "time_to_limit_s": float(t[k]) if math.isfinite(t[k]) else None,
+            "corner": label(k)}
+
+
+def thermal_result(drive: Drive, plan, frequency: float, period: int, peak_time: float,
+                   offs: list[dict], hold_freewheel_w: float,
+                   hold_elements_w: dict) -> ThermalCycleResult | None:
+    """The ``thermal_cycle`` result of a voltage-mode design (``None`` without ``[duty]``
+    and ``thermal.capacity``): ``plan`` is the solved hold
+    (:class:`~coildrive.design.regulation.HoldPlan`, its heating points), ``offs`` the
+    turn-offs (:func:`coildrive.design.turnoff.turn_offs`), ``hold_freewheel_w`` the
+    freewheel path's hold power at its worst corner and ``hold_elements_w`` each
+    element's (W)."""
+    th, cyc = drive.thermal, drive.duty
+    if cyc is None and th.capacity <= 0:
+        return None
+    heat = plan.heat
+    duty = plan.heat_compare / period
+    factors = {"diode_factor": heat.tol.diode_factor, "fast_factor": heat.tol.fast_factor,
+               "sense_factor": heat.tol.sense_factor}
+    args = (drive, heat.supply, heat.tol.r_factor, heat.tol.l_factor, duty, frequency, factors)
+    continuous = hold_temperature(drive, heat.supply, heat.ambient, heat.tol.r_factor,
+                                  heat.tol.l_factor, duty, frequency, factors)
+    k_cont = int(np.argmax(np.where(np.isfinite(continuous), continuous, np.inf)))
+    out = dict(max_coil_temp_c=th.max_coil_temp, continuous_hold_c=float(continuous[k_cont]),
+               continuous_hold_corner=heat.label(k_cont), capacity_j_k=None, time_constant_s=None,
+               on_time_s=None, off_time_s=None, actuation_rate_hz=None, cycle=None,
+               freewheel=None, cold_start=None, warm_start=None)
+    if cyc is not None:
+        out.update(on_time_s=cyc.on_time, off_time_s=cyc.off_time, actuation_rate_hz=cyc.actuation_rate)
+        hold_share = max(cyc.on_time - peak_time, 0.0) / cyc.period
+        end_of_hold = offs[0]
+        release_w = {n: e * cyc.actuation_rate for n, e in end_of_hold["elements_j"].items()}
+        names = list(release_w) + [n for n in hold_elements_w if n not in release_w]
+        out["freewheel"] = {
+            "release_energy_j": end_of_hold["energy_j"],
+            "release_power_w": end_of_hold["energy_j"] * cyc.actuation_rate,
+            "release_elements_w": release_w,
+            "release_corner": end_of_hold["energy_corner"],
+            "hold_power_w": hold_freewheel_w * hold_share,
+            "average_power_w": end_of_hold["energy_j"] * cyc.actuation_rate + hold_freewheel_w * hold_share,
+            "elements_average_w": {n: release_w.get(n, 0.0) + hold_elements_w.get(n, 0.0) * hold_share
+                                   for n in names},
+        }
+    if th.capacity <= 0 or th.resistance <= 0:
+        return ThermalCycleResult(**out)
+    out.update(capacity_j_k=th.capacity, time_constant_s=th.time_constant)
+    peak = on_energies(*args, peak_time=peak_time) if cyc is not None else None
+    power_at = hold_power(drive, heat.supply, heat.tol.r_factor, heat.tol.l_factor, duty,
+                          frequency, factors)
+
+    def peak_heat(temp):   # the peak's copper heat (J), full on from zero for the peak time
+        lp = loop(drive, heat.supply, temp, heat.tol.r_factor, heat.tol.l_factor, **factors)
+        _, s_pk = rise_integrals(peak_time, 0.0, lp.v_on, lp.r_on, peak_inductance(drive, lp))
+        return lp.r_coil * s_pk
+    out["cold_start"] = _start(drive, power_at, peak_heat, heat.ambient.copy(), heat.ambient,
+                               heat.label)
+    if cyc is not None:
+        st = cycle_states(drive, heat.supply, heat.ambient, heat.tol.r_factor, heat.tol.l_factor,
+                          duty, frequency, factors, peak_time)
+        k = int(np.argmax(np.where(np.isfinite(st.hottest), st.hottest, np.inf)))
+        e_pk, e_hold, e_rel = (float(np.asarray(e)[k]) for e in peak(
+            np.where(np.isfinite(st.hottest), st.hottest, th.max_coil_temp)))
+        out["cycle"] = {
+            "hottest_c": float(st.hottest[k]), "coolest_c": float(st.coolest[k]),
+            "corner": heat.label(k), "on_power_w": float(st.heat[k] + st.slope[k] * (
+                (st.hottest[k] if math.isfinite(st.hottest[k]) else th.max_coil_temp) - heat.ambient[k])),
+            "peak_energy_j": e_pk, "hold_energy_j": e_hold, "release_energy_j": e_rel,
+        }
+        out["warm_start"] = _start(drive, power_at, peak_heat, st.coolest, heat.ambient, heat.label)
+    return ThermalCycleResult(**out)
+
+
+def thermal_curves(result: ThermalCycleResult, points: int = 200) -> dict:
+    """The coil temperature held on from a cold start and from a warm restart (the cycle's
+    coolest point), by name: ``(time s, temperature degC, time to the limit s or None)``,
+    each to a little past its time to the limit (or five time constants where it never
+    gets there). For ``design --plot``."""
+    out = {}
+    for name, s in (("cold start", result.cold_start), ("hot restart", result.warm_start)):
+        if s is None:
+            continue
+        lam = 1.0 / result.time_constant_s - s["heat_slope_w_k"] / result.capacity_j_k
+        span = 5.0 / lam if lam > 0 else 5.0 * result.time_constant_s
+        if s["time_to_limit_s"] is not None:
+            span = min(span, 1.5 * s["time_to_limit_s"]) if s["time_to_limit_s"] > 0 else span
+        t = np.linspace(0.0, span, points)
+        rise = heating(s["start_rise_k"], t, s["heat_w"], s["heat_slope_w_k"],
+                       result.time_constant_s / result.capacity_j_k, result.capacity_j_k)
+        out[name] = (t, s["ambient_c"] + rise, s["time_to_limit_s"])
+    return out
+
+
+def duration_text(seconds: float | None) -> str:
+    """``"10.1 min"`` from two minutes up, ``"4.4 ms"`` below, ``"never"`` for ``None``."""
+    if seconds is None:
+        return "never"
+    if seconds >= 120.0:
+        return f"{seconds / 60.0:.3g} min"
+    return format_si(seconds, "s")
+
+
+def thermal_checks(drive: Drive, peak_time: float | None,
+                   result: ThermalCycleResult | None) -> list[Check]:
+    """With a ``[duty]``: the on-time holds the whole peak phase (``peak_time`` s, ``None``
+    when the pull-in is not reached), and each freewheel element with a power rating takes
+    no more than its rating x ``power_derating`` on average over the cycle (the hold's
+    own check takes a continuous hold)."""
+    if drive.duty is None or result is None:
+        return []
+    out = []
+    on = drive.duty.on_time
+    if peak_time is not None:
+        ok = on > peak_time
+        out.append(Check("duty_on_time", ok,
+                         f"duty.on_time {duration_text(on)} vs the peak phase {peak_time * 1e3:.4g} ms"
+                         + ("" if ok else " — the actuation ends before the peak does: lengthen "
+                            "duty.on_time")))
+    fw = drive.freewheel
+    for name, w in result.freewheel["elements_average_w"].items():
+        rating = getattr(fw, f"{name}_power_rating", 0.0)
+        if rating <= 0:
+            continue
+        limit = rating * fw.power_derating
+        ok = w <= limit
+        out.append(Check(f"{name}_average_power", ok,
+                         f"over the on/off cycle the {ELEMENT_NAMES[name]} takes {w:.3g} W on average "
+                         f"(releases x {result.actuation_rate_hz:.4g}/s + the hold's share) vs {limit:.3g} W "
+                         f"({fw.power_derating:.0%} of the {rating:.3g} W rating, power derating: common "
+                         "practice)" + ("" if ok else " — fewer actuations a second, a lower hold "
+                                        "current or a part rated for more")))
+    return out
+
+
+def thermal_cautions(result: ThermalCycleResult | None) -> list[str]:
+    """The on-time limits, where the coil can reach its limit when held on."""
+    if result is None:
+        return []
+    parts = [f"{duration_text(s['time_to_limit_s'])} from {what}"
+             for what, s in (("a cold start", result.cold_start), ("the warm coil of the on/off "
+                                                                   "cycle", result.warm_start))
+             if s is not None and s["time_to_limit_s"] is not None]
+    if not parts:
+        return []
+    return [f"Held on continuously (a jam, a stuck command), the coil reaches its "
+            f"{result.max_coil_temp_c:.0f} degC limit after {' and '.join(parts)}: make the "
+            "firmware end an actuation well before that, and do not rely on it alone where an "
+            "overheated coil is a hazard."]
+
+
+def cycle_caution(result: ThermalCycleResult) -> str:
+    """The coil-temperature caution when the envelope takes the on/off cycle's hottest coil."""
+    c = result.cycle
+    return (f"Over its on/off cycle ({duration_text(result.on_time_s)} on, {duration_text(result.off_time_s)} off) "
+            f"the coil reaches up to {c['hottest_c']:.0f} degC; held on for good it would settle at "
+            f"{result.continuous_hold_c:.0f} degC. Hot coils burn and insulation ages fast above its "
+            "class rating.")
