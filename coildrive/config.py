@@ -28,6 +28,9 @@ MAX_FILE_BYTES = 1 << 20
 
 FREEWHEEL_TYPES = ("diode", "zener", "resistor", "clamp")
 SENSE_POSITIONS = ("coil", "switch")
+#: Where the switch sits (``[switch] topology``): between the coil and ground
+#: (``low_side``) or between the supply and the coil (``high_side``).
+TOPOLOGIES = ("low_side", "high_side")
 HOLD_MODES = ("voltage", "current")
 CURRENT_CONTROLS = ("hysteretic", "off_time")
 _CURRENT_MODE_KEYS = ("control", "band", "off_time", "min_frequency", "max_frequency", "sense_delay")
@@ -347,7 +350,13 @@ class SupplySense:
 
 @dataclass(frozen=True)
 class Switch:
-    """Low-side switch: on-resistance in ohm, voltage rating in V, derating fraction.
+    """The switch: on-resistance in ohm, voltage rating in V, derating fraction, topology.
+
+    ``topology`` (one of :data:`TOPOLOGIES`) says where it sits: ``low_side`` between the
+    coil and ground (the freewheel path across the coil, the drain rising above the
+    supply at turn-off), ``high_side`` between the supply and the coil (the freewheel
+    path returning to ground, the switch node swinging below ground at turn-off); see
+    :mod:`coildrive.model.topology`.
 
     The peak switch voltage must stay below ``max_voltage * derating``. ``rise_time``
     and ``fall_time`` (s, 0 = not given) are the switching transition times used for
@@ -364,6 +373,7 @@ class Switch:
     fall_time: float = 0.0
     power_rating: float = 0.0
     power_derating: float = POWER_DERATING
+    topology: str = "low_side"
 
 
 @dataclass(frozen=True)
@@ -489,8 +499,9 @@ _LATER_FIELDS = (
     (("pull_in",), PullIn, ("current_margin", "settle_time", "compensate")),
     (("board", "sense"), Sense, ("resistance_tolerance", "gain_tolerance")),
     (("board", "supply_sense"), SupplySense, ("divider_tolerance",)),
-    (("switch",), Switch, ("rise_time", "fall_time", "power_rating", "power_derating")),
-    (("board", "switch"), Switch, ("rise_time", "fall_time", "power_rating", "power_derating")),
+    (("switch",), Switch, ("rise_time", "fall_time", "power_rating", "power_derating", "topology")),
+    (("board", "switch"), Switch, ("rise_time", "fall_time", "power_rating", "power_derating",
+                                   "topology")),
     (("freewheel",), Freewheel, _FREEWHEEL_LATER),
     (("board", "freewheel"), Freewheel, _FREEWHEEL_LATER),
     (("board", "timer"), Timer, ("max_pwm_frequency",)),
@@ -668,6 +679,7 @@ def _read_switch(sec: _Section) -> Switch:
         fall_time=sec.quantity("fall_time", "time", 0.0, nonnegative=True),
         power_rating=sec.quantity("power_rating", "power", 0.0, nonnegative=True),
         power_derating=_power_derating(sec),
+        topology=sec.choice("topology", TOPOLOGIES, "low_side"),
     )
     if not 0 < switch.derating <= 1:
         raise sec.fail("derating", f"{switch.derating:g} must be in (0, 1], e.g. 0.8")

@@ -138,3 +138,21 @@ def test_stuck_armature_fails_on_the_missing_seat(tmp_path):
     assert rc == 1, rows
     assert rows["seated_time"] == "FAIL", rows
     assert rows["actuations"] == "pass" and rows["link"] == "pass", rows
+
+
+def test_high_side_drive_emulates_captures_and_passes_check(tmp_path):
+    # A high-side switch: the emulated board streams the coil current from its coil-return
+    # sense resistor (the same two sense positions as a low-side board), and check passes.
+    drive = EXAMPLES / "gate-valve-highside-24v.toml"
+    out = tmp_path / "hs.cdcap"
+    emu = Emulator(drive, "--noise", "1", "--seed", "7")
+    try:
+        r = run_cli("capture", emu.path, "--drive", str(drive), "--out", str(out), "--actuations", "2",
+                    timeout=TIMEOUT)
+    finally:
+        emu.stop()
+    assert r.returncode == 0 and "2 actuation(s)" in r.stderr, r.stderr
+    r = run_cli("check", str(out), str(drive), "--json")
+    rows = {i["name"]: i["status"] for i in json.loads(r.stdout)["items"]}
+    assert r.returncode == 0, rows
+    assert rows["release_time"] == "pass" and rows["hold_mean"] == "pass", rows

@@ -42,6 +42,7 @@ from .peak import plan_peak, shortest_peak_current
 from .regulation import HoldPlan, coil_power_at, solve_hold, table_lookup, table_supplies
 from .result import ActuationPoint, Design, DutyTable, HoldResult, SplitDecayResult, TimerResult
 from .timer import TimerSetting, solve_timer
+from .topology import topology_cautions, topology_result
 from .turnoff import turn_offs
 
 
@@ -145,6 +146,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
             "the current dip and the release on the bench before relying on the margins of a "
             "safety-relevant actuator (an armature that fails to release keeps the load engaged).")
     notes += loss_cautions(drive, hold, release, split)
+    topo = topology_result(drive, env, res, peak_end, thresholds.trip_current_a)
+    notes += topology_cautions(drive, topo)
     peak_time = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate
     # the plot shows the hold for twice the peak, at least 20 and at most 2000 PWM periods
     hold_time = min(max(2.0 * peak_time, 20.0 / f_hold), 2000.0 / f_hold)
@@ -158,7 +161,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                  adc=thresholds, duty_table=table, corners=corners, nominal=nominal,
                  checks=checks, cautions=notes, monte_carlo=None,
                  input_hash=drive.input_hash(), worst_corner_index=pk.k_pull, armature=arm,
-                 split_decay=split, actuation_points=points, peak_table=pk.table)
+                 split_decay=split, actuation_points=points, peak_table=pk.table, topology=topo)
     if samples > 0:
         from .montecarlo import monte_carlo
 

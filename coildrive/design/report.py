@@ -22,7 +22,7 @@ def summary_table(d: Design) -> Table:
     t.add_column("value", justify="right")
     t.add_column("where / how")
     h, r, tm, a = d.hold, d.release, d.timer, d.adc
-    rows = [*_tolerance_rows(d), *_pull_in_rows(d),
+    rows = [*_topology_rows(d), *_tolerance_rows(d), *_pull_in_rows(d),
         ("hold frequency", format_si(h.frequency_hz, "Hz", 6),
          f"prescaler {tm.prescaler}, period {tm.period_ticks} counts ({tm.frequency_error:+.3%})"),
         ("hold regulation", h.regulation.replace("_", " "), _regulation_how(d)),
@@ -49,6 +49,16 @@ def summary_table(d: Design) -> Table:
     for row in rows:
         t.add_row(*(escape(c) for c in row))
     return t
+
+
+def _topology_rows(d: Design) -> list:
+    """Where the switch sits and how low its node swings (none for a low-side switch)."""
+    t = d.topology
+    if t is None:
+        return []
+    return [("switch topology", t.name.replace("_", " "),
+             f"sense {t.sense_place}; the {t.switch_node} swings to {t.lowest_node_voltage_v:.4g} V "
+             f"at turn-off ({t.lowest_node_event}, {t.lowest_node_corner})")]
 
 
 def _tolerance_rows(d: Design) -> list:

@@ -292,6 +292,26 @@ class ReleaseResult:
 
 
 @dataclass(frozen=True)
+class TopologyResult:
+    """Where the switch sits, for a topology other than the low-side switch (``design
+    --json`` key ``topology``; absent for a low-side switch, whose switch node is the
+    drain and whose figures are all in ``release``).
+
+    ``lowest_node_voltage_v`` is the lowest voltage of the switch node against ground at
+    any turn-off (end of hold, end of peak, over-current trip, every hold off-time), at
+    ``lowest_node_corner`` on ``lowest_node_event``. ``sense_place`` says where ``sense_position`` puts the resistor.
+    """
+
+    name: str
+    switch_node: str
+    sense_position: str
+    sense_place: str
+    lowest_node_voltage_v: float
+    lowest_node_corner: str
+    lowest_node_event: str
+
+
+@dataclass(frozen=True)
 class TimerResult:
     """PWM timer registers. ``prescaler`` and ``period_ticks`` are divide ratio and counts."""
 
@@ -375,6 +395,7 @@ class Design:
     peak_table: PeakTable | None = None
     armature: ArmatureResult | None = None
     split_decay: SplitDecayResult | None = None
+    topology: TopologyResult | None = None
 
     @property
     def ok(self) -> bool:
@@ -405,6 +426,8 @@ class Design:
             "cautions": list(self.cautions),
         }
         out["nominal"] = _corner_dict(self.nominal)
+        if self.topology is not None:
+            out["topology"] = asdict(self.topology)
         if self.armature is not None:
             out["armature"] = asdict(self.armature)
         if self.split_decay is not None:

@@ -1,15 +1,8 @@
 """The driver circuit around the coil: loop resistances and voltages at operating points.
 
-Topology (low-side switch)::
-
-    V_bus ──┬───────────────┐
-            │            freewheel path (diode, diode+Zener, diode+resistor)
-          coil (R_coil(T), L)│
-            │  [R_sense if position = "coil"]
-            ├───────────────┘
-          drain ── switch (R_on) ── [R_sense if position = "switch"] ── ground
-            └── clamp (TVS, drain to ground) if freewheel type = "clamp"
-
+The coil's loop is the same for a low-side and a high-side switch (the circuits are
+drawn in :mod:`coildrive.model.low_side` and :mod:`coildrive.model.high_side`; where
+the switch node sits against ground is :mod:`coildrive.model.topology`'s business).
 Switch on: ``V_bus = (R_coil + R_switch + R_sense) i + L di/dt``.
 Switch off: ``L di/dt = -(R_off i + V_off)`` where, by freewheel type,
 
