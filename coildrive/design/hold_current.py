@@ -318,8 +318,9 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     # Hold powers at every corner from the exact switching cycle (coil at its settled
     # temperature there), as for the PWM hold.
     loss = current_losses(drive, res, cm)
-    corners = corners_of(grid, res, loss, duty=cm.duty)
-    nominal = corners_of(nom_grid, nom, current_losses(drive, nom, nom_cm), duty=nom_cm.duty)[0]
+    corners = corners_of(grid, res, loss, duty=cm.duty, drive=drive)
+    nominal = corners_of(nom_grid, nom, current_losses(drive, nom, nom_cm), duty=nom_cm.duty,
+                         drive=drive)[0]
     nominal = dataclasses.replace(nominal, label="nominal: " + nominal.label)
 
     result = _mode_result(drive, th, grid, cm, float(nom_cm.frequency[0]))

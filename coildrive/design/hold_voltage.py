@@ -90,12 +90,12 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     res = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor, d_high, f_hold,
                    long_, reuse=first if np.array_equal(d_low, d_high) else None, **at)
     loss = _losses(drive, res, f_hold)
-    corners = corners_of(env, res_low, loss, high=res, duty=d_high)
+    corners = corners_of(env, res_low, loss, high=res, duty=d_high, drive=drive)
     nom_grid = nominal_point(drive)
     nom = evaluate(drive, nom_grid.supply, nom_grid.ambient, nom_grid.r_factor, nom_grid.l_factor,
                    _nominal_duty(drive, plan, period), f_hold,
                    0.0 if pk.ticks is None else pk.ticks / board.tick.rate)
-    nominal = corners_of(nom_grid, nom, _losses(drive, nom, f_hold),
+    nominal = corners_of(nom_grid, nom, _losses(drive, nom, f_hold), drive=drive,
                          duty=_nominal_duty(drive, plan, period))[0]
     nominal = dataclasses.replace(nominal, label="nominal: " + nominal.label)
 

@@ -91,7 +91,11 @@ class Check:
 
 @dataclass(frozen=True)
 class Corner:
-    """Figures at one operating corner. SI units, temperatures in degC."""
+    """Figures at one operating corner. SI units, temperatures in degC.
+
+    ``switch_node_voltage_v`` (a topology whose switch node is not the switch voltage,
+    :mod:`coildrive.model.topology`; ``None`` for a low-side switch): the node against
+    ground at the turn-offs that give ``peak_switch_voltage_v``."""
 
     label: str
     supply_v: float
@@ -114,6 +118,7 @@ class Corner:
     freewheel_power_w: float = math.nan
     switch_power_w: float = math.nan
     hold_duty: float = math.nan
+    switch_node_voltage_v: float | None = None
 
 
 #: Per-corner keys added with an ``[armature]`` (flattened into each JSON corner).
@@ -444,6 +449,8 @@ class Design:
 def _corner_dict(c: Corner) -> dict:
     """A corner as JSON: the armature figures, when there are any, flattened in."""
     d = asdict(c)
+    if d["switch_node_voltage_v"] is None:  # a low-side switch: its node is the switch voltage
+        del d["switch_node_voltage_v"]
     arm = d.pop("armature")
     if arm is not None:
         d.update(arm)
