@@ -140,11 +140,13 @@ def test_stuck_armature_fails_on_the_missing_seat(tmp_path):
     assert rows["actuations"] == "pass" and rows["link"] == "pass", rows
 
 
-def test_high_side_drive_emulates_captures_and_passes_check(tmp_path):
-    # A high-side switch: the emulated board streams the coil current from its coil-return
-    # sense resistor (the same two sense positions as a low-side board), and check passes.
-    drive = EXAMPLES / "gate-valve-highside-24v.toml"
-    out = tmp_path / "hs.cdcap"
+@pytest.mark.parametrize("example", ["gate-valve-highside-24v", "dosing-valve-bridge-24v"])
+def test_other_topologies_emulate_capture_and_pass_check(tmp_path, example):
+    # A high-side switch and a full bridge: the emulated board streams the coil current from
+    # its coil-path sense resistor (the same two sense positions as a low-side board; the
+    # bridge's release decays fast into the bus), and check passes.
+    drive = EXAMPLES / f"{example}.toml"
+    out = tmp_path / "act.cdcap"
     emu = Emulator(drive, "--noise", "1", "--seed", "7")
     try:
         r = run_cli("capture", emu.path, "--drive", str(drive), "--out", str(out), "--actuations", "2",

@@ -161,7 +161,7 @@ def _armature_constants(d: Design, m: str) -> list[Constant]:
 
 
 #: ``[switch] topology`` -> its number in the header (``PREFIX_TOPOLOGY_...``).
-TOPOLOGY_NUMBERS = {"low_side": 0, "high_side": 1}
+TOPOLOGY_NUMBERS = {"low_side": 0, "high_side": 1, "full_bridge": 2}
 
 
 def _topology_constants(d: Design, m: str) -> tuple[list[Constant], str]:

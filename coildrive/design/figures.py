@@ -13,7 +13,7 @@ import math
 import numpy as np
 
 from ..config import Drive
-from ..model.circuit import split_decay
+from ..model.circuit import full_bridge, split_decay
 from ..model.losses import HoldLosses
 from ..model.topology import topology_of
 from .corners import CornerGrid
@@ -107,6 +107,9 @@ def worst(values: np.ndarray, largest: bool = True) -> int:
 
 def path_name(drive: Drive, hold: bool) -> str:
     fw = drive.freewheel
+    if full_bridge(drive):
+        return ("two low-side switches (slow decay)" if hold else
+                "two body diodes into the supply (fast decay)")
     fast = {"diode": "diode", "zener": "diode + Zener", "resistor": "diode + resistor",
             "clamp": "clamp across the switch"}[fw.type]
     if hold and split_decay(drive):

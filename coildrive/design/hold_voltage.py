@@ -42,7 +42,7 @@ from .peak import plan_peak, shortest_peak_current
 from .regulation import HoldPlan, coil_power_at, solve_hold, table_lookup, table_supplies
 from .result import ActuationPoint, Design, DutyTable, HoldResult, SplitDecayResult, TimerResult
 from .timer import TimerSetting, solve_timer
-from .topology import topology_cautions, topology_result
+from .topology import bridge_checks, pumped_release, topology_cautions, topology_result
 from .turnoff import turn_offs
 
 
@@ -123,6 +123,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     thresholds = adc_thresholds(drive, res, res_low, hold.min_mean_current_a, env)
     offs = turn_offs(drive, env, res, peak_end, thresholds.trip_current_a)
     release = release_result(drive, env, res, offs)
+    topo = topology_result(drive, env, res, peak_end, thresholds.trip_current_a)
+    release = pumped_release(release, topo)
     pull_in = pull_in_result(drive, env, res, pk, shortest_peak_current(drive, res_low, short))
     timer_result = TimerResult(clock_hz=board.timer.clock, bits=board.timer.bits,
                                prescaler=timer.prescaler, period_ticks=period,
@@ -146,8 +148,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
             "the current dip and the release on the bench before relying on the margins of a "
             "safety-relevant actuator (an armature that fails to release keeps the load engaged).")
     notes += loss_cautions(drive, hold, release, split)
-    topo = topology_result(drive, env, res, peak_end, thresholds.trip_current_a)
     notes += topology_cautions(drive, topo)
+    checks += bridge_checks(drive, topo)
     peak_time = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate
     # the plot shows the hold for twice the peak, at least 20 and at most 2000 PWM periods
     hold_time = min(max(2.0 * peak_time, 20.0 / f_hold), 2000.0 / f_hold)

@@ -33,6 +33,8 @@ def element_energies(drive: Drive, lp: Loop, current) -> dict[str, np.ndarray]:
     q, s = decay_integrals(t0, i0, lp.r_off, lp.v_off, lp.inductance)
     fw = drive.freewheel
     zero = np.zeros_like(np.asarray(q, float))
+    if lp.bridge == "fast":  # the two body diodes (each takes half)
+        return {"diode": 2.0 * lp.diode(drive) * q + zero}
     if lp.bypassed:
         return {"diode": lp.diode(drive) * q, "bypass": fw.bypass_resistance * s}
     if fw.type == "clamp":

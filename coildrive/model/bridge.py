@@ -35,7 +35,7 @@ Physics only; SI units (A, V, ohm, H, F, s, J); every function broadcasts over a
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -178,3 +178,28 @@ def pump_up(i0, v1, capacitance, r_off, inductance, v_diode) -> PumpUp:
     v2 = v1 + q / c
     return PumpUp(v2, v2 - v1, 0.5 * c * (v2**2 - v1**2), t_zero, q)
 
+
+
+@dataclass(frozen=True)
+class FullBridge:
+    """:class:`~coildrive.model.topology.Topology` of a full bridge. Its two legs swing
+    in turn; ``simulate`` gives the highest of the four switches' voltages
+    (``switch_voltage_v``) and the design the energy the fast decay returns."""
+
+    name: str = "full_bridge"
+    node: str = "leg A (the coil's end the high-side switch drives)"
+    sense_places: dict = field(default_factory=lambda: {
+        "coil": "inline with the coil (reads the current always)",
+        "switch": "in the common return below the low-side switches (reads only while driving)"})
+    shows_node: bool = False
+
+    def node_voltage(self, supply, switch_voltage, sense_drop):
+        """Leg A to ground, V: the bus less its high-side switch's voltage."""
+        return np.asarray(supply, float) - np.asarray(switch_voltage, float) - np.asarray(sense_drop, float)
+
+    def switch_peak_from_node(self, supply: float, node_peak: float, node_lowest: float) -> tuple[float, str]:
+        """A probe on leg B reads the low-side switch's voltage directly."""
+        return node_peak, "highest sampled leg voltage"
+
+
+TOPOLOGY = FullBridge()

@@ -19,7 +19,7 @@ from typing import Protocol
 import numpy as np
 
 from ..config import Drive
-from . import high_side, low_side
+from . import bridge, high_side, low_side
 
 
 class Topology(Protocol):
@@ -75,4 +75,5 @@ def sense_leg_drop(drive: Drive, current, on):
 
 def topology_of(drive: Drive) -> Topology:
     """The topology of ``drive`` (its ``[switch] topology``; config has checked the name)."""
-    return {"low_side": low_side.TOPOLOGY, "high_side": high_side.TOPOLOGY}[drive.switch.topology]
+    return {"low_side": low_side.TOPOLOGY, "high_side": high_side.TOPOLOGY,
+            "full_bridge": bridge.TOPOLOGY}[drive.switch.topology]

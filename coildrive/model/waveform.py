@@ -21,7 +21,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..config import Drive
-from .circuit import loop, split_decay
+from .circuit import full_bridge, loop, split_decay
 from .rl import decay_current, decay_time, rise_current
 from .topology import coil_voltage, sense_leg_drop, topology_of
 
@@ -114,8 +114,10 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
     cs.append(i_hold)
     ons.append(on_hold)
 
-    # Release: decay to zero.
-    return release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_offedge, i_off, big, label)
+    # Release: decay to zero (a full bridge's through its fast path).
+    fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") if full_bridge(drive) else lp
+    return release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_offedge, i_off, big, label,
+                            release_lp=fast)
 
 
 def peak_samples(peak_time: float, v: float, r_on: float, ind: float, big: int,
@@ -131,12 +133,15 @@ def peak_samples(peak_time: float, v: float, r_on: float, ind: float, big: int,
 
 
 def release_waveform(drive: Drive, lp, supply: float, ts: list, cs: list, ons: list,
-                     peak_time: float, t_off: float, i_off: float, big: int, label: str) -> Waveform:
+                     peak_time: float, t_off: float, i_off: float, big: int, label: str,
+                     release_lp=None) -> Waveform:
     """Close an actuation without split decay: append the free decay from ``i_off`` A at
     the final turn-off ``t_off`` s down to zero through the off path of ``lp`` (``big``
-    samples) to the sample pieces ``ts``/``cs``/``ons`` (s, A, 0/1), and make the
-    :class:`Waveform` of them (switch-on at 0 s, the hold from ``peak_time`` s)."""
-    r_off, v_off, ind = (float(x) for x in (lp.r_off, lp.v_off, lp.inductance))
+    samples) -- or of ``release_lp``, a full bridge's fast path -- to the sample pieces
+    ``ts``/``cs``/``ons`` (s, A, 0/1), and make the :class:`Waveform` of them (switch-on at
+    0 s, the hold from ``peak_time`` s)."""
+    rel = lp if release_lp is None else release_lp
+    r_off, v_off, ind = (float(x) for x in (rel.r_off, rel.v_off, rel.inductance))
     tz = float(decay_time(0.0, i_off, r_off, v_off, ind))
     td = np.linspace(0.0, tz, big + 1)[1:]
     ts.append(t_off + td)
@@ -146,6 +151,8 @@ def release_waveform(drive: Drive, lp, supply: float, ts: list, cs: list, ons: l
     current = np.concatenate(cs)
     on = np.concatenate(ons).astype(np.int8)
     v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
+    if rel is not lp:  # the release's switch voltage from its own path
+        v_sw = np.where(time > t_off, _switch_and_sense(drive, rel, supply, current, on)[0], v_sw)
     events = {"on": 0.0, "hold": peak_time, "off": t_off, "zero": t_off + tz}
     return Waveform(time, current, on, v_sw, sense, events, label,
                     **node_columns(drive, supply, current, on, v_sw))
