@@ -28,6 +28,11 @@ MAX_FILE_BYTES = 1 << 20
 
 FREEWHEEL_TYPES = ("diode", "zener", "resistor", "clamp")
 SENSE_POSITIONS = ("coil", "switch")
+#: Where the switch sits (``[switch] topology``): between the coil and ground
+#: (``low_side``), between the supply and the coil (``high_side``), or four switches
+#: around it (``full_bridge``: slow decay in the hold, fast decay into the supply at the
+#: release).
+TOPOLOGIES = ("low_side", "high_side", "full_bridge")
 HOLD_MODES = ("voltage", "current")
 CURRENT_CONTROLS = ("hysteretic", "off_time")
 _CURRENT_MODE_KEYS = ("control", "band", "off_time", "min_frequency", "max_frequency", "sense_delay")
@@ -77,6 +82,8 @@ BOUNDS: dict[str, tuple[float, float, str]] = {
     "supply.min": (0.5, 1000.0, "voltage"),
     "supply.nominal": (0.5, 1000.0, "voltage"),
     "supply.max": (0.5, 1000.0, "voltage"),
+    "supply.capacitance": (1e-9, 10.0, "capacitance"),
+    "supply.capacitor_voltage": (1.0, 10e3, "voltage"),
     "ambient.min": (-75.0, 200.0, "temperature"),
     "ambient.max": (-75.0, 200.0, "temperature"),
     "thermal.resistance": (0.0, 10e3, "thermal_resistance"),
@@ -146,6 +153,7 @@ BOUNDS: dict[str, tuple[float, float, str]] = {
 _ZERO_MEANS_UNSET = frozenset((
     "hold.band", "hold.off_time", "hold.max_frequency", "timer.max_pwm_frequency",
     "switch.rise_time", "switch.fall_time", "switch.power_rating", "freewheel.zener_voltage",
+    "supply.capacitance", "supply.capacitor_voltage",
     "freewheel.resistance", "freewheel.clamp_voltage", "freewheel.diode_power_rating",
     "freewheel.zener_power_rating", "freewheel.resistor_power_rating",
     "freewheel.clamp_power_rating", "freewheel.bypass_power_rating",
@@ -168,7 +176,7 @@ def bounds_text(name: str) -> str:
     if dimension == "mass":
         ends = [format_si(x * 1e3, "g") for x in (low, high)]
     elif dimension in ("resistance", "inductance", "voltage", "current", "time", "frequency",
-                       "length", "force", "stiffness", "power"):
+                       "length", "force", "stiffness", "power", "capacitance"):
         ends = [format_si(x, unit) for x in (low, high)]
     else:   # units without SI prefixes in the files (degC, K/W, N*s/m, plain numbers)
         ends = [f"{x:g} {unit}".strip() for x in (low, high)]
@@ -194,11 +202,20 @@ class Coil:
 
 @dataclass(frozen=True)
 class Supply:
-    """Bus voltage range in V."""
+    """Bus voltage range in V.
+
+    For a full bridge, whose fast decay returns the coil's energy to the bus: ``sink``
+    says whether the supply takes current back (default true); when it cannot, the
+    returned charge lands on the bulk ``capacitance`` (F, needed then) and pumps the bus
+    up; ``capacitor_voltage`` is that capacitor's rated voltage (V, 0 = not given).
+    """
 
     min: float
     nominal: float
     max: float
+    sink: bool = True
+    capacitance: float = 0.0
+    capacitor_voltage: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -378,7 +395,13 @@ class SupplySense:
 
 @dataclass(frozen=True)
 class Switch:
-    """Low-side switch: on-resistance in ohm, voltage rating in V, derating fraction.
+    """The switch: on-resistance in ohm, voltage rating in V, derating fraction, topology.
+
+    ``topology`` (one of :data:`TOPOLOGIES`) says where it sits: ``low_side`` between the
+    coil and ground (the freewheel path across the coil, the drain rising above the
+    supply at turn-off), ``high_side`` between the supply and the coil (the freewheel
+    path returning to ground, the switch node swinging below ground at turn-off); see
+    :mod:`coildrive.model.topology`.
 
     The peak switch voltage must stay below ``max_voltage * derating``. ``rise_time``
     and ``fall_time`` (s, 0 = not given) are the switching transition times used for
@@ -395,6 +418,7 @@ class Switch:
     fall_time: float = 0.0
     power_rating: float = 0.0
     power_derating: float = POWER_DERATING
+    topology: str = "low_side"
 
 
 @dataclass(frozen=True)
@@ -522,10 +546,12 @@ _LATER_FIELDS = (
     (("hold",), Hold, _CURRENT_MODE_KEYS + ("regulation",)),
     (("thermal",), Thermal, ("capacity",)),
     (("pull_in",), PullIn, ("current_margin", "settle_time", "compensate")),
+    (("supply",), Supply, ("sink", "capacitance", "capacitor_voltage")),
     (("board", "sense"), Sense, ("resistance_tolerance", "gain_tolerance")),
     (("board", "supply_sense"), SupplySense, ("divider_tolerance",)),
-    (("switch",), Switch, ("rise_time", "fall_time", "power_rating", "power_derating")),
-    (("board", "switch"), Switch, ("rise_time", "fall_time", "power_rating", "power_derating")),
+    (("switch",), Switch, ("rise_time", "fall_time", "power_rating", "power_derating", "topology")),
+    (("board", "switch"), Switch, ("rise_time", "fall_time", "power_rating", "power_derating",
+                                   "topology")),
     (("freewheel",), Freewheel, _FREEWHEEL_LATER),
     (("board", "freewheel"), Freewheel, _FREEWHEEL_LATER),
     (("board", "timer"), Timer, ("max_pwm_frequency",)),
@@ -703,6 +729,7 @@ def _read_switch(sec: _Section) -> Switch:
         fall_time=sec.quantity("fall_time", "time", 0.0, nonnegative=True),
         power_rating=sec.quantity("power_rating", "power", 0.0, nonnegative=True),
         power_derating=_power_derating(sec),
+        topology=sec.choice("topology", TOPOLOGIES, "low_side"),
     )
     if not 0 < switch.derating <= 1:
         raise sec.fail("derating", f"{switch.derating:g} must be in (0, 1], e.g. 0.8")
@@ -970,6 +997,35 @@ def resolve_board(spec: str, relative_to: Path | None = None) -> Path:
                      "and no such file")
 
 
+def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,
+                  supply: Supply, hold: Hold, armature: Armature | None) -> None:
+    """What a full bridge needs: its freewheel path is its switches' body diodes (type
+    "diode", no split decay: the bridge decays slowly and fast by itself), a voltage-mode
+    hold and no moving armature (not modelled on a bridge yet), and with a supply that
+    cannot sink the returned energy, the bulk capacitance. (The supply's ``sink`` and
+    ``capacitance`` keys mean nothing to the other topologies, which return no energy.)"""
+    if switch.topology != "full_bridge":
+        return
+    if freewheel.type != "diode":
+        raise InputError(fw_origins.get("type", source), "freewheel.type",
+                         f"{freewheel.type!r} with switch.topology = \"full_bridge\": the bridge's body "
+                         "diodes are its freewheel path, expected type = \"diode\" (diode_drop = the "
+                         "body diode's drop)")
+    if freewheel.split_decay:
+        raise InputError(fw_origins.get("split_decay", source), "freewheel.split_decay",
+                         "a full bridge decays slowly in the hold and fast at the release by itself: "
+                         "expected split_decay left out")
+    if hold.mode != "voltage":
+        raise InputError(source, "hold.mode", f"{hold.mode!r} with a full bridge: coildrive designs a "
+                         "full bridge's hold in voltage mode only, expected mode = \"voltage\"")
+    if armature is not None:
+        raise InputError(source, "armature", "a moving armature on a full bridge is not modelled: "
+                         "expected no [armature] section with switch.topology = \"full_bridge\"")
+    if not supply.sink and not supply.capacitance > 0:
+        raise InputError(source, "supply.capacitance", "missing: with sink = false the returned "
+                         "energy lands on the bulk capacitance, expected its value (e.g. \"470 uF\")")
+
+
 def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
     """Read a drive file and its board.
 
@@ -1018,7 +1074,10 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
     s = _section(source, data, "supply")
     supply = Supply(s.quantity("min", "voltage", positive=True),
                     s.quantity("nominal", "voltage", positive=True),
-                    s.quantity("max", "voltage", positive=True))
+                    s.quantity("max", "voltage", positive=True),
+                    s.boolean("sink", True),
+                    s.quantity("capacitance", "capacitance", 0.0, nonnegative=True),
+                    s.quantity("capacitor_voltage", "voltage", 0.0, nonnegative=True))
     if supply.min > supply.max:
         raise s.fail("min", f"{supply.min:g} V is above supply.max ({supply.max:g} V), expected min <= max")
     if not supply.min <= supply.nominal <= supply.max:
@@ -1105,6 +1164,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
         fw_board = {k: v for k, v in fw_board.items() if k == "type" or v}
     merged, origins = _merged(brd.source, fw_board, source, fw_drive)
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
+    _check_bridge(source, origins, switch, freewheel, supply, hold, armature)
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:
         raise InputError(origins.get("clamp_voltage", source), "freewheel.clamp_voltage",
                          f"{freewheel.clamp_voltage:g} V is not above supply.max ({supply.max:g} V): "

@@ -47,6 +47,7 @@ DIMENSIONS: dict[str, Dimension] = {
     "power": Dimension("power", "W"),
     "energy": Dimension("energy", "J"),
     "heat_capacity": Dimension("heat capacity", "J/K"),
+    "capacitance": Dimension("capacitance", "F"),
     "dimensionless": Dimension("plain number", ""),
 }
 
@@ -78,6 +79,7 @@ _UNITS: dict[str, tuple[str, float, bool]] = {
     "J": ("energy", 1.0, True),
     "J/K": ("heat_capacity", 1.0, True),
     "J/degC": ("heat_capacity", 1.0, False),
+    "F": ("capacitance", 1.0, True),
     "%": ("dimensionless", 0.01, False),
 }
 _TEMPERATURE_UNITS = {"degC": 0.0, "\u00b0C": 0.0, "K": -273.15}
@@ -114,7 +116,8 @@ def example_for(dimension: str) -> str:
         "thermal_resistance": '"15 K/W"', "temperature": '"-10 degC"',
         "mass": '"12 g"', "force": '"3.5 N"', "stiffness": '"800 N/m"',
         "length": '"1.5 mm"', "damping": '"0.2 N*s/m"', "power": '"2 W"',
-        "energy": '"50 mJ"', "heat_capacity": '"12 J/K"', "dimensionless": "0.1 or \"10 %\"",
+        "energy": '"50 mJ"', "heat_capacity": '"12 J/K"', "capacitance": '"470 uF"',
+        "dimensionless": "0.1 or \"10 %\"",
     }[dimension]
 
 

@@ -13,6 +13,14 @@ hand:
 * clamp from the drain to ground, supply still connected:
   ``V_bus = (R_coil [+ R_sense in the coil path]) i + V_clamp + L di/dt``.
 
+With a high-side switch (``topology="high_side"``) the switch sits between the supply
+(through the sense resistor when it is in the supply leg) and the coil's top terminal,
+the switch node; the coil returns to ground (through the sense resistor when it is in
+the coil return); the freewheel path runs from ground up to the node, and a clamp from
+the bus to the node. The loop equations above are the same (the same elements in the
+same loops); the node sits at ``V_bus - V_switch``: ``-(V_d [+ V_z] + R_fw i)``
+freewheeling, ``V_bus - V_clamp`` with the clamp.
+
 The fixtures write their own board and drive files, so that a change to a bundled board
 cannot change what these references check.
 """
@@ -58,10 +66,13 @@ def _toml_value(value) -> str:
 
 def write_board(folder: Path, freewheel: str, sense_position: str, *,
                 sense_resistance: str = "0.1 ohm", on_resistance: str = "35 mohm",
-                max_voltage: str = "150 V", tick_rate: str = "10 kHz") -> Path:
-    """An invented board file with the named freewheel path and sense position."""
+                max_voltage: str = "150 V", tick_rate: str = "10 kHz",
+                topology: str | None = None) -> Path:
+    """An invented board file with the named freewheel path and sense position (and
+    switch topology; ``None`` leaves the key out: a low-side switch)."""
     fw = "\n".join(f"{k} = {_toml_value(v)}" for k, v in FREEWHEELS[freewheel].items())
-    path = folder / f"board-{freewheel}-{sense_position}.toml"
+    path = folder / f"board-{freewheel}-{sense_position}{'-' + topology if topology else ''}.toml"
+    where = f'topology = "{topology}"\n' if topology else ""
     path.write_text(f"""\
 name = "ref-{freewheel}-{sense_position}"
 description = "reference-test board"
@@ -85,7 +96,7 @@ position = "{sense_position}"
 divider = 21
 
 [switch]
-on_resistance = "{on_resistance}"
+{where}on_resistance = "{on_resistance}"
 max_voltage = "{max_voltage}"
 
 [freewheel]
@@ -144,9 +155,11 @@ current = "{release}"
     return path
 
 
-def reference_drive(folder: Path, freewheel: str, sense_position: str, **drive) -> Drive:
-    """Load a drive on an invented board with the given freewheel path and sense position."""
-    board = write_board(folder, freewheel, sense_position)
+def reference_drive(folder: Path, freewheel: str, sense_position: str,
+                    topology: str | None = None, **drive) -> Drive:
+    """Load a drive on an invented board with the given freewheel path, sense position and
+    switch topology (``None``: the key left out, a low-side switch)."""
+    board = write_board(folder, freewheel, sense_position, topology=topology)
     return load_drive(write_drive(folder, board, **drive))
 
 
@@ -165,6 +178,7 @@ class Parts:
     v_zener: float
     r_fw: float
     v_clamp: float
+    high_side: bool = False
 
     def on(self) -> tuple[float, float]:
         """``(V, R)`` with ``L di/dt = V - R i`` while the switch is on."""
@@ -186,6 +200,16 @@ class Parts:
         if self.freewheel == "clamp":
             return self.v_clamp
         return self.v_bus + self.v_diode + self.v_zener + self.r_fw * current
+
+    def node_voltage_off(self, current: float) -> float:
+        """Switch node to ground while ``current`` A freewheels: the drain for a low-side
+        switch; for a high-side one the source, KVL from ground up the freewheel path
+        (``-(V_d + V_z + R_fw i)``) or down from the bus across the clamp."""
+        if not self.high_side:
+            return self.drain_voltage_off(current)
+        if self.freewheel == "clamp":
+            return self.v_bus - self.v_clamp
+        return -(self.v_diode + self.v_zener + self.r_fw * current)
 
     def element_energy(self, charge: float, square: float) -> float:
         """Energy in J into the freewheel element(s) (diode, Zener, resistor; or the clamp)
@@ -216,6 +240,7 @@ def parts(drive: Drive, supply: float, coil_temp: float, r_factor: float = 1.0,
         v_zener=fw.zener_voltage,
         r_fw=fw.resistance,
         v_clamp=fw.clamp_voltage,
+        high_side=drive.switch.topology == "high_side",
     )
 
 

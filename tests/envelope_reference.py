@@ -17,7 +17,11 @@ The circuit (Kirchhoff's voltage law around each loop, the topology of DESIGN.md
 * split decay: during the hold a bypass switch shorts the fast element (or, with a clamp,
   closes a diode path across the coil): ``L di/dt = -(V_d + (R_coil [+ R_sense] +
   R_bypass) i)``; the final turn-off takes the fast element;
-* every freewheel path conducts one way: the current stops at zero and stays there.
+* every freewheel path conducts one way: the current stops at zero and stays there;
+* a full bridge: two switches on, ``V_bus = (R_coil + 2 R_sw + R_sense) i + L di/dt``; the
+  hold's off-times recirculate through the two low-side switches, ``0 = (R_coil + 2 R_sw
+  [+ R_sense inline]) i + L di/dt``; the release runs through two body diodes into the
+  bus, ``-(V_bus + 2 V_d) = (R_coil + R_sense) i + L di/dt``.
 
 Copper: IEC 60028 gives the resistance of annealed copper linear in temperature about
 20 degC, ``R(T) = R_20 (1 + alpha_20 (T - 20))`` with ``alpha_20 = 0.00393 /K``; a coil
@@ -99,6 +103,18 @@ def circuit(drive: Drive, supply: float, coil_temp: float, r_factor: float = 1.0
     if inductance is None:
         inductance = coil.inductance if drive.armature is None else drive.armature.inductance_closed
     r_path = r_coil + (sense.resistance if sense.position == "coil" else 0.0)
+    if drive.switch.topology == "full_bridge":
+        # KVL round the bridge (docs/design-method.md#full-bridge): two switches drive; the
+        # hold recirculates through the two low-side ones; the release runs through two
+        # body diodes into the bus, past the sense resistor in either position; the
+        # switches then see the bus plus a diode (plus a common-return sense drop).
+        r_sw = drive.switch.on_resistance
+        on = Segment(supply, r_coil + 2 * r_sw + sense.resistance, False)
+        hold_off = Segment(0.0, r_path + 2 * r_sw, False)
+        release = Segment(-(supply + 2 * fw.diode_drop), r_coil + sense.resistance, True)
+        r_el = sense.resistance if sense.position == "switch" else 0.0
+        return Circuit(float(supply), r_coil, inductance * l_factor, on, hold_off, release,
+                       fw.diode_drop, r_el, False)
     on = Segment(supply, r_coil + drive.switch.on_resistance + sense.resistance, False)
     if fw.type == "clamp":
         release = Segment(supply - fw.clamp_voltage, r_path, True)

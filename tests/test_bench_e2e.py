@@ -138,3 +138,23 @@ def test_stuck_armature_fails_on_the_missing_seat(tmp_path):
     assert rc == 1, rows
     assert rows["seated_time"] == "FAIL", rows
     assert rows["actuations"] == "pass" and rows["link"] == "pass", rows
+
+
+@pytest.mark.parametrize("example", ["gate-valve-highside-24v", "dosing-valve-bridge-24v"])
+def test_other_topologies_emulate_capture_and_pass_check(tmp_path, example):
+    # A high-side switch and a full bridge: the emulated board streams the coil current from
+    # its coil-path sense resistor (the same two sense positions as a low-side board; the
+    # bridge's release decays fast into the bus), and check passes.
+    drive = EXAMPLES / f"{example}.toml"
+    out = tmp_path / "act.cdcap"
+    emu = Emulator(drive, "--noise", "1", "--seed", "7")
+    try:
+        r = run_cli("capture", emu.path, "--drive", str(drive), "--out", str(out), "--actuations", "2",
+                    timeout=TIMEOUT)
+    finally:
+        emu.stop()
+    assert r.returncode == 0 and "2 actuation(s)" in r.stderr, r.stderr
+    r = run_cli("check", str(out), str(drive), "--json")
+    rows = {i["name"]: i["status"] for i in json.loads(r.stdout)["items"]}
+    assert r.returncode == 0, rows
+    assert rows["release_time"] == "pass" and rows["hold_mean"] == "pass", rows

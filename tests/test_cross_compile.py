@@ -25,7 +25,7 @@ from coildrive.codegen.header import generate_header
 from coildrive.codegen.stream import _CODE_BYTES, StreamView, memory_use, render_stream_encoder
 from coildrive.config import load_board, load_drive
 from coildrive.design import design
-from conftest import BOARDS, EXAMPLES, require_tool
+from conftest import BOARDS, EXAMPLES, loads, require_tool
 
 pytestmark = pytest.mark.compiler
 
@@ -46,7 +46,8 @@ ENCODERS = {
     "mid": dict(board=load_board(BOARDS / "lab-m32-zener.toml")),
     "big": dict(samples_per_frame=510, blocks=2, event_slots=4, crc_table=True),
 }
-COMBOS = list(itertools.product(sorted(EXAMPLES.glob("*.toml")), sorted(BOARDS.glob("*.toml"))))
+COMBOS = [(e, b) for e, b in itertools.product(sorted(EXAMPLES.glob("*.toml")), sorted(BOARDS.glob("*.toml")))
+          if loads(e, b.stem)]
 
 
 @pytest.fixture(scope="module")

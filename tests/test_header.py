@@ -16,11 +16,12 @@ import pytest
 from coildrive.config import load_drive
 from coildrive.design import design
 from coildrive.codegen.header import generate_header
-from conftest import BOARDS, EXAMPLES, require_tool, run_cli
+from conftest import BOARDS, EXAMPLES, loads, require_tool, run_cli
 
 FLAGS = ["-Wall", "-Wextra", "-Werror", "-pedantic"]
-COMBOS = list(itertools.product(sorted(p.stem for p in EXAMPLES.glob("*.toml")),
-                                sorted(p.stem for p in BOARDS.glob("*.toml"))))
+COMBOS = [(e, b) for e, b in itertools.product(sorted(p.stem for p in EXAMPLES.glob("*.toml")),
+                                               sorted(p.stem for p in BOARDS.glob("*.toml")))
+          if loads(EXAMPLES / f"{e}.toml", b)]
 
 PRINTER = r"""
 #include <stdio.h>

@@ -40,15 +40,15 @@ freewheel energy 4e-4 (relative), peak switch voltage 1.2 mV (the devices' 1 moh
 from __future__ import annotations
 
 import math
-import re
-import subprocess
-from pathlib import Path
 
 import pytest
 
 from circuit_reference import (CASE_IDS, CASES, FAST_COIL, POINT, SLOW_COIL, Parts, parts,
                                reference_drive)
-from conftest import require_tool
+from ngspice_run import G_ON, OPTIONS
+from ngspice_run import decay_case
+from ngspice_run import knee as _knee
+from ngspice_run import run as _run
 from coildrive.model.circuit import freewheel_element_energy, loop
 from coildrive.model.pwm import duty_for_mean, pwm_steady_state
 from coildrive.model.rl import decay_integrals, decay_time, rise_current, rise_time
@@ -56,24 +56,12 @@ from coildrive.model.rl import decay_integrals, decay_time, rise_current, rise_t
 pytestmark = pytest.mark.ngspice
 
 EDGE = 1e-9  # s, rise and fall time of the gate pulse
-G_ON = 1e3  # S, on-conductance of the piecewise-linear devices (1 mohm)
-G_OFF = 1e-9  # S, off-conductance of the piecewise-linear devices
 G_OFF_SWITCH = 1e-12  # S, off-conductance of the switch (ngspice's default switch ROFF)
 R_BLEED = 1e6  # ohm, from the drain to the supply, see the module docstring
 #: A, "zero" for the ngspice current: far above the leakage through the open switch and
 #: clamp (<= 1e-9 S x 28 V), far below the currents checked. Reaching it instead of 0 A
 #: shortens the model's decay by ``tau * I_ZERO / (V_off / R_off)`` < 1e-4 s x 1e-4.
 I_ZERO = 1e-6
-OPTIONS = ".options reltol=1e-6 abstol=1e-9 vntol=1e-6"
-
-_RESULT = re.compile(r"^(\w+)\s*=\s*([-+0-9.eE]+)", re.M)
-
-
-def _knee(name: str, plus: str, minus: str, knee: float) -> str:
-    """A piecewise-linear one-way device from ``plus`` to ``minus`` with a knee at ``knee`` V."""
-    v = f"V({plus},{minus})"
-    return (f"{name} {plus} {minus} I = {v} > {knee!r} ? ({v} - {knee!r}) * {G_ON!r} + "
-            f"{knee * G_OFF!r} : {v} * {G_OFF!r}")
 
 
 def _freewheel_lines(p: Parts) -> list[str]:
@@ -125,18 +113,6 @@ def _netlist(p: Parts, title: str, on_time: float, period: float, tstop: float,
     return "\n".join(lines) + "\n"
 
 
-def _run(tmp_path: Path, name: str, text: str) -> dict[str, float]:
-    """Run ngspice in batch mode on ``text``; return the ``meas`` results by name."""
-    ngspice = require_tool("ngspice")
-    cir = tmp_path / f"{name}.cir"
-    cir.write_text(text)
-    proc = subprocess.run([ngspice, "-b", str(cir)], capture_output=True, text=True, timeout=30,
-                          cwd=tmp_path)
-    out = proc.stdout + proc.stderr
-    assert proc.returncode == 0, f"ngspice failed on {cir}:\n{out}"
-    for bad in ("Timestep too small", "failed!", "rror"):
-        assert bad not in out, f"ngspice reported {bad!r} on {cir}:\n{out}"
-    return {k: float(v) for k, v in _RESULT.findall(out)}
 
 
 def _drive_and_parts(tmp_path, freewheel, position, coil=SLOW_COIL):
@@ -248,11 +224,8 @@ def test_pwm_discontinuous_conduction_matches_ngspice(tmp_path, freewheel, posit
 @pytest.mark.parametrize("freewheel,position", CASES, ids=CASE_IDS)
 def test_decay_matches_ngspice(tmp_path, freewheel, position):
     drive, lp, p = _drive_and_parts(tmp_path, freewheel, position)
-    i_pull, i_drop = drive.pull_in.current, drive.release.current
-    t_on = 1.5 * float(rise_time(i_pull, 0.0, lp.v_on, lp.r_on, lp.inductance))
-    i0 = float(rise_current(t_on, 0.0, lp.v_on, lp.r_on, lp.inductance))
-    t_drop = float(decay_time(i_drop, i0, lp.r_off, lp.v_off, lp.inductance))
-    t_zero = float(decay_time(0.0, i0, lp.r_off, lp.v_off, lp.inductance))
+    i_drop = drive.release.current
+    t_on, i0, t_drop, t_zero = decay_case(drive, lp)
     q, s = decay_integrals(t_zero, i0, lp.r_off, lp.v_off, lp.inductance)
     energy = float(freewheel_element_energy(drive, lp, q, s))
     v_switch = float(lp.switch_voltage(drive, i0))

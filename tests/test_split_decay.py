@@ -475,7 +475,10 @@ def test_split_decay_hold_and_release_match_ngspice(tmp_path):
     """ngspice transient (batch mode) of the split-decay circuit with a real bypass switch
     across the Zener on its own gate: the hold's steady state and element powers follow
     the slow loop, the release after the bypass opens the fast one."""
-    from test_reference_ngspice import EDGE, G_OFF, G_OFF_SWITCH, OPTIONS, R_BLEED, _knee, _run
+    from ngspice_run import G_OFF, OPTIONS
+    from ngspice_run import knee as _knee
+    from ngspice_run import run as _run
+    from test_reference_ngspice import EDGE, G_OFF_SWITCH, R_BLEED
 
     from coildrive.design.evaluate import release_figures
 

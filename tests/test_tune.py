@@ -38,7 +38,7 @@ from coildrive.model.circuit import loop
 from coildrive.tune.sweep import (TuneOptions, minimum_hold_current, rank_settings,
                                   realisable_frequencies, recommended_design, recommended_hold, tune)
 from circuit_reference import iec60028_resistance
-from conftest import BOARDS, EXAMPLES
+from conftest import BOARDS, EXAMPLES, loads
 
 #: Relative agreement with evaluate(): its self-heating stops within 1e-4 K (thermal.py);
 #: with alpha = 0.00393 /K (IEC 60028) that moves a current by < 1e-6 relative.
@@ -463,8 +463,9 @@ def _paste_hold(text: str, section: str) -> str:
     return text[:start] + section + "\n" + text[end:]
 
 
-@pytest.mark.parametrize("board", sorted(p.stem for p in BOARDS.glob("*.toml")))
-@pytest.mark.parametrize("example", sorted(p.name for p in EXAMPLES.glob("*.toml")))
+@pytest.mark.parametrize("example,board", [
+    (e, b) for e in sorted(p.name for p in EXAMPLES.glob("*.toml"))
+    for b in sorted(p.stem for p in BOARDS.glob("*.toml")) if loads(EXAMPLES / e, b)])
 def test_every_offered_frequency_is_exact_and_the_pasted_hold_designs_to_it(tmp_path, example, board):
     """Timer arithmetic: every frequency offered is a whole number of Hz equal to
     clock / (prescaler x period) exactly; the [hold] printed for the recommendation,

@@ -36,6 +36,7 @@ from ..config import Board, Drive
 from ..design.corners import nominal_point
 from ..errors import InputError
 from ..jsondoc import json_ready
+from ..model.topology import topology_of
 from .analysis import Analysis, analyse
 from .capture_file import Capture
 from .messages import EventKind, FaultCode
@@ -326,11 +327,13 @@ def _row(name: str, unit: str, values: list, predicted: float | None, tol: float
                      tuple(edge_margin_pct(v, low, high) for v in values))
 
 
-def _switch_voltage_row(peak: float, predicted: float, rating: float) -> CheckItem:
-    """The switch-node voltage a scope saw against the switch's rating: a one-sided band
-    (``margin_pct`` is the headroom below the rating in percent of it)."""
+def _switch_voltage_row(peak: float, predicted: float, rating: float,
+                        how: str = "highest sampled switch-node voltage") -> CheckItem:
+    """The switch voltage a scope's switch-node probe gives (``how``, in words) against the
+    switch's rating: a one-sided band (``margin_pct`` is the headroom below the rating in
+    percent of it)."""
     ok = peak <= rating
-    detail = (f"highest sampled switch-node voltage, rating {rating:.4g} V"
+    detail = (f"{how}, rating {rating:.4g} V"
               + ("" if ok else ": above the switch's rating -- fit a stronger clamp or a higher-rated switch")
               + "; a spike shorter than one sample can be higher")
     margin = round(100.0 * (rating - peak) / rating, 6) if rating > 0 else None
@@ -478,10 +481,16 @@ def check_capture(capture: Capture, design, tolerances: Tolerances | None = None
                           tol.release_time, res_floor("release_resolution_s"),
                           na_reason="sense under the switch: the release decay is invisible" if sense_switch else None,
                           extra=f" (to {drive.release.current:.4g} A)", numbers=numbers))
-    node_peak = meta.extra.get("switch_node_peak_v") if isinstance(meta.extra, dict) else None
+    extra = meta.extra if isinstance(meta.extra, dict) else {}
+    node_peak = extra.get("switch_node_peak_v")
+    node_low = extra.get("switch_node_lowest_v", math.nan)
     if n and isinstance(node_peak, (int, float)) and math.isfinite(node_peak):
-        items.append(_switch_voltage_row(float(node_peak), pred["peak_switch_voltage_v"],
-                                         board.switch.max_voltage))
+        # where the switch sits says how the node's samples give the switch's voltage
+        peak, how = topology_of(drive).switch_peak_from_node(
+            point.supply_v, float(node_peak), float(node_low) if isinstance(node_low, (int, float)) else math.nan)
+        if math.isfinite(peak):
+            items.append(_switch_voltage_row(peak, pred["peak_switch_voltage_v"],
+                                             board.switch.max_voltage, how))
     return CheckReport(items=tuple(items), analysis=a, point=point, tolerances=tol, prediction=pred,
                        drive_name=drive.name, board_name=board.name, capture_source=capture.source,
                        notes=tuple(notes + list(a.notes)), cautions=BENCH_CAUTIONS, waveform=w)

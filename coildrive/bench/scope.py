@@ -718,6 +718,7 @@ def _read_scope_csv(path: str | os.PathLike, options: ScopeOptions | None) -> Ca
         node = other_cols[roles["node"]][keep]
         if np.any(np.isfinite(node)):
             extra["switch_node_peak_v"] = float(np.nanmax(np.abs(node)))
+            extra["switch_node_lowest_v"] = float(np.nanmin(node))
     meta["extra"] = extra
     return Capture(index.astype(np.int64), code, tuple(events), (), CaptureMeta(**meta), source=source)
 

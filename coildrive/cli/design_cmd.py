@@ -151,7 +151,8 @@ def boards_command(
         typer.echo(json.dumps([{"name": b.name, "description": b.description, "timer_clock_hz": b.timer.clock,
                                 "timer_bits": b.timer.bits, "adc_bits": b.adc.bits,
                                 "sense_position": b.sense.position, "freewheel": b.freewheel.type,
-                                "switch_max_voltage_v": b.switch.max_voltage, "baud": b.link.baud}
+                                "switch_max_voltage_v": b.switch.max_voltage,
+                                "switch_topology": b.switch.topology, "baud": b.link.baud}
                                for b in boards], indent=2))
         return
     from rich.console import Console
@@ -168,5 +169,8 @@ def boards_command(
         table.add_row(b.name, f"{b.timer.clock / 1e6:g} MHz {b.timer.bits}-bit",
                       f"{b.adc.bits}-bit {b.adc.reference:g} V",
                       f"{b.sense.position} {b.sense.resistance:g} ohm x{b.sense.gain:g}",
-                      fw.type + detail, f"{b.switch.max_voltage:g} V", f"{b.link.baud} Bd")
+                      fw.type + detail,
+                      f"{b.switch.max_voltage:g} V" + ("" if b.switch.topology == "low_side" else
+                                                       f" {b.switch.topology.replace('_', ' ')}"),
+                      f"{b.link.baud} Bd")
     Console().print(table)

@@ -87,6 +87,10 @@ class DriverView:
         self.compare_type = c_uint_type(d.timer.period_ticks)
         self.adc_type = c_uint_type(2**board.adc.bits - 1)
         self.regulation = regulation_of(d)
+        if d.drive.switch.topology == "full_bridge":
+            raise InputError(d.drive.source or d.drive.name, "switch.topology",
+                             "'full_bridge': the reference driver runs one switch (low- or high-side); "
+                             "a bridge's four gates and decay modes are not in it yet")
         if self.regulation not in ("fixed", "supply_table", "current", "closed_loop"):
             raise InputError(d.drive.source or d.drive.name, "hold.regulation",
                              f"{self.regulation!r}: this driver runs the fixed, supply-table, "

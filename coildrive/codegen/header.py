@@ -126,6 +126,7 @@ class HeaderView:
         if d.armature is not None:
             self.constants += _armature_constants(d, m)
         self.bypass_constants = _bypass_constants(d, m)
+        self.topology_constants, self.topology = _topology_constants(d, m)
         self.table = list(zip(d.duty_table.adc_codes, d.duty_table.compare_ticks, d.duty_table.supply_v))
         self.constants = _current_relabel_fallback(d, m, self.constants)
         self.current_constants = _current_header_constants(d, m)
@@ -163,6 +164,21 @@ def _armature_constants(d: Design, m: str) -> list[Constant]:
         Constant(f"{m}_RELEASE_OPEN_TICKS", math.ceil(a.release_open_time_s * rate - 1e-9),
                  f"armature back open {a.release_open_time_s * 1e3:.4g} ms after off (worst corner)"),
     ]
+
+
+#: ``[switch] topology`` -> its number in the header (``PREFIX_TOPOLOGY_...``).
+TOPOLOGY_NUMBERS = {"low_side": 0, "high_side": 1, "full_bridge": 2}
+
+
+def _topology_constants(d: Design, m: str) -> tuple[list[Constant], str]:
+    """For a switch that is not low-side: the topology numbers and the macro naming this
+    design's (``PREFIX_SWITCH_TOPOLOGY``); a low-side header has neither (its bytes stay
+    as they were: no topology macro means a low-side switch)."""
+    t = d.topology
+    if t is None:
+        return [], ""
+    return ([Constant(f"{m}_TOPOLOGY_{name.upper()}", number, f"switch topology: {name.replace('_', ' ')}")
+             for name, number in TOPOLOGY_NUMBERS.items()], f"{m}_TOPOLOGY_{t.name.upper()}")
 
 
 def _bypass_constants(d: Design, m: str) -> list[Constant]:

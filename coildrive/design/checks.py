@@ -298,6 +298,9 @@ def loss_cautions(drive: Drive, hold: HoldResult, release: ReleaseResult,
                    split: SplitDecayResult | None) -> list[str]:
     parts = ", ".join(f"{ELEMENT_NAMES[n]} {w:.3g} W" for n, w in hold.freewheel_elements_w.items())
     out = [
+        f"During a long hold the switches take up to {hold.switch_power_w:.3g} W (the current "
+        "recirculates through them; no freewheel element takes power): size them and their cooling "
+        "from the datasheets' derating curves at the highest ambient."] if not parts else [
         f"During a long hold the freewheel path takes up to {hold.freewheel_power_w:.3g} W ({parts}) "
         f"and the switch {hold.switch_power_w:.3g} W: parts taking watts get hot enough to burn; size "
         "them and their cooling from the datasheets' derating curves at the highest ambient."]

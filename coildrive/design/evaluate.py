@@ -16,7 +16,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..config import Drive
-from ..model.circuit import Loop, freewheel_element_energy, loop, split_decay
+from ..model.circuit import Loop, freewheel_element_energy, loop, two_paths
 from ..model.pwm import PwmSteadyState, duty_for_mean, pwm_steady_state
 from ..model.rl import decay_current, decay_integrals, decay_time, rise_current, rise_time
 from ..model.thermal import settle_temperature
@@ -211,7 +211,7 @@ def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
     power = ss.rms**2 * lp.r_coil
     i_off = ss.i_max
     lp_rel = (loop(drive, supply, finite, r_factor, l_factor, path="release", **factors)
-              if split_decay(drive) else lp)
+              if two_paths(drive) else lp)
     t_drop, t_zero, energy, i_fast = release_figures(drive, lp, lp_rel, i_off)
     arm = None
     if drive.armature is not None and mechanics:

@@ -13,8 +13,9 @@ import math
 import numpy as np
 
 from ..config import Drive
-from ..model.circuit import split_decay
+from ..model.circuit import full_bridge, split_decay
 from ..model.losses import HoldLosses
+from ..model.topology import topology_of
 from .corners import CornerGrid
 from .evaluate import PointResults
 from .envelope import reading_factors
@@ -56,17 +57,22 @@ def corner_armature(res: PointResults, k: int) -> dict | None:
 
 
 def corners_of(grid: CornerGrid, res: PointResults, losses: HoldLosses | None = None,
-               high: PointResults | None = None, duty=math.nan) -> list[Corner]:
+               high: PointResults | None = None, duty=math.nan, drive: Drive | None = None) -> list[Corner]:
     """The corners as :class:`Corner` results: the hold figures from ``res``, and where the
     firmware's hold varies with its reading of the supply, the end-of-peak current, the
     switch voltage, the release energy and the coil power from ``high`` (the most
-    current it may run there); ``duty``: the switch-on fraction of ``high`` at each corner."""
+    current it may run there); ``duty``: the switch-on fraction of ``high`` at each corner.
+    With ``drive``, its topology's switch node where that is not the switch voltage."""
     hi = res if high is None else high
     out = []
     duty_at = np.broadcast_to(np.asarray(duty, float), (len(grid),))
     nan = np.full(len(grid), math.nan)
     fw_p = nan if losses is None else np.broadcast_to(losses.freewheel, nan.shape)
     sw_p = nan if losses is None else np.broadcast_to(losses.switch, nan.shape)
+    topo = None if drive is None else topology_of(drive)
+    node = None
+    if topo is not None and topo.shows_node:
+        node = topo.node_voltage(hi.supply, hi.peak_switch_voltage, 0.0)
     for k in range(len(grid)):
         out.append(Corner(
             label=grid.label(k),
@@ -84,6 +90,7 @@ def corners_of(grid: CornerGrid, res: PointResults, losses: HoldLosses | None = 
             armature=corner_armature(res, k),
             freewheel_power_w=float(fw_p[k]), switch_power_w=float(sw_p[k]),
             hold_duty=float(duty_at[k]),
+            switch_node_voltage_v=None if node is None else float(node[k]),
         ))
     return out
 
@@ -100,6 +107,9 @@ def worst(values: np.ndarray, largest: bool = True) -> int:
 
 def path_name(drive: Drive, hold: bool) -> str:
     fw = drive.freewheel
+    if full_bridge(drive):
+        return ("two low-side switches (slow decay)" if hold else
+                "two body diodes into the supply (fast decay)")
     fast = {"diode": "diode", "zener": "diode + Zener", "resistor": "diode + resistor",
             "clamp": "clamp across the switch"}[fw.type]
     if hold and split_decay(drive):

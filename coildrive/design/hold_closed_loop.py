@@ -47,6 +47,7 @@ from .figures import (adc_thresholds, corners_of, hold_spread, loss_figures, pul
 from .hold_voltage import _losses, _split_result, closing_checks, plot_points
 from .peak import plan_peak, shortest_peak_current
 from .thermal_cycle import refuse_cycle
+from .topology import topology_cautions, topology_result
 from .result import Check, ClosedLoopResult, Design, DutyTable, HoldResult, TimerResult
 from .timer import solve_timer
 from .turnoff import turn_offs
@@ -57,6 +58,10 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
         raise InputError("--samples", "", "the Monte Carlo covers the fixed and supply-table holds "
                          "only (this drive has hold.regulation = \"closed_loop\")")
     refuse_cycle(drive, 'regulation = "closed_loop"')
+    if drive.switch.topology == "full_bridge":
+        raise InputError(drive.source, "switch.topology", "'full_bridge': the closed-loop hold is "
+                         "designed for one switch (low- or high-side); use the fixed or "
+                         "supply-table hold on a bridge")
     if drive.pull_in.compensate:
         raise InputError(drive.source, "pull_in.compensate", "a supply-compensated peak is designed "
                          "for the fixed and supply-table holds; leave it out with regulation = "
@@ -126,7 +131,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     res = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor, run_high, f,
                    long_, **at)
     loss = _losses(drive, res, f)
-    corners = corners_of(env, res_low, loss, high=res, duty=run_high)
+    corners = corners_of(env, res_low, loss, high=res, duty=run_high, drive=drive)
 
     # nominal: nominal parts, the channel reading true, the coil at its own settled heat
     nom_grid = nominal_point(drive)
@@ -142,7 +147,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     peak_time = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate
     nom = evaluate(drive, nom_grid.supply, nom_grid.ambient, nom_grid.r_factor, nom_grid.l_factor,
                    nom_duty, f, peak_time, coil_temp=nom_temp)
-    nominal = corners_of(nom_grid, nom, _losses(drive, nom, f), duty=nom_duty)[0]
+    nominal = corners_of(nom_grid, nom, _losses(drive, nom, f), duty=nom_duty, drive=drive)[0]
     nominal = dataclasses.replace(nominal, label="nominal: " + nominal.label)
 
     # each hold starts from the most duty the loop settles at anywhere: the current comes
@@ -168,8 +173,10 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
         current_step_a=loop_result.smallest_step_a, **spread, **loss_figures(drive, env, loss),
         split_decay_saving=None, regulation="closed_loop", closed_loop=loop_result)
     thresholds = adc_thresholds(drive, res, res_low, hold.min_mean_current_a, env)
-    offs = turn_offs(drive, env, res, np.asarray(res.peak_end_current, float), thresholds.trip_current_a)
+    peak_end = np.asarray(res.peak_end_current, float)
+    offs = turn_offs(drive, env, res, peak_end, thresholds.trip_current_a)
     release = release_result(drive, env, res, offs)
+    topo = topology_result(drive, env, res, peak_end, thresholds.trip_current_a)
     pull_in = pull_in_result(drive, env, res, pk, shortest_peak_current(drive, res_low, short))
     timer_result = TimerResult(clock_hz=board.timer.clock, bits=board.timer.bits,
                                prescaler=timer.prescaler, period_ticks=period, compare_ticks=preload,
@@ -182,12 +189,13 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                           math.floor(float(np.min(run_low)) * period + 1e-9)) if split_decay(drive) else None
     arm, more, notes = closing_checks(drive, env, res_low, hold, loss, release, split)
     checks += more
+    notes += topology_cautions(drive, topo)
     points = plot_points(drive, pk, env, nom, res_low, f)
     return Design(drive=drive, pull_in=pull_in, hold=hold, release=release, timer=timer_result,
                   adc=thresholds, duty_table=DutyTable([], [], []), corners=corners, nominal=nominal,
                   checks=checks, cautions=notes, monte_carlo=None, input_hash=drive.input_hash(),
                   worst_corner_index=pk.k_pull, armature=arm, split_decay=split,
-                  actuation_points=points, peak_table=None)
+                  actuation_points=points, peak_table=None, topology=topo)
 
 
 def _loop(drive, env, lp, res_low, duty, f, period, setpoint, lsb, min_compare, max_compare,

@@ -59,6 +59,7 @@ from .turnoff import turn_offs
 from .result import Check, CurrentModeResult, Design, HoldResult, Thresholds
 from .thermal_cycle import refuse_cycle
 from .timer import solve_timer
+from .topology import topology_cautions, topology_result
 
 #: Upper end of the allowed switching range when neither ``hold.max_frequency`` nor the
 #: board's ``timer.max_pwm_frequency`` gives one (our choice, as for ``coildrive tune``).
@@ -319,8 +320,9 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     # Hold powers at every corner from the exact switching cycle (coil at its settled
     # temperature there), as for the PWM hold.
     loss = current_losses(drive, res, cm)
-    corners = corners_of(grid, res, loss, duty=cm.duty)
-    nominal = corners_of(nom_grid, nom, current_losses(drive, nom, nom_cm), duty=nom_cm.duty)[0]
+    corners = corners_of(grid, res, loss, duty=cm.duty, drive=drive)
+    nominal = corners_of(nom_grid, nom, current_losses(drive, nom, nom_cm), duty=nom_cm.duty,
+                         drive=drive)[0]
     nominal = dataclasses.replace(nominal, label="nominal: " + nominal.label)
 
     result = _mode_result(drive, th, grid, cm, float(nom_cm.frequency[0]))
@@ -351,6 +353,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
             checks.append(dataclasses.replace(c, detail="fixed-duty fallback: " + c.detail,
                                               severity="warning"))
     notes = cautions(drive, hold, release) + loss_cautions(drive, hold, release, split)
+    topo = topology_result(drive, grid, res, res.peak_end_current, thresholds.trip_current_a)
+    notes += topology_cautions(drive, topo)
     points = tuple(
         hold_voltage.plot_point(drive, name, label, r, k, min(max(2.0 * peak_time, 20.0 * (
             float(r.hold.period[k]) if np.isfinite(r.hold.period[k]) else 1e-4)), 2000.0 * (
@@ -360,7 +364,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     return dataclasses.replace(
         fallback, drive=drive, pull_in=pull_in, hold=hold, release=release, adc=thresholds,
         split_decay=split, corners=corners, nominal=nominal, checks=checks, cautions=notes,
-        actuation_points=points, input_hash=drive.input_hash(), worst_corner_index=k_pull)
+        actuation_points=points, topology=topo, input_hash=drive.input_hash(), worst_corner_index=k_pull)
 
 
 def _mode_result(drive: Drive, th: Thresholds, grid: CornerGrid, cm: CurrentModeSteadyState,

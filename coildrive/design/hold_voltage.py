@@ -44,6 +44,7 @@ from .result import ActuationPoint, Design, DutyTable, HoldResult, SplitDecayRes
 from .thermal_cycle import (cycle_caution, cycling, thermal_cautions, thermal_checks,
                             thermal_result)
 from .timer import TimerSetting, solve_timer
+from .topology import bridge_checks, pumped_release, topology_cautions, topology_result
 from .turnoff import turn_offs
 
 
@@ -103,12 +104,12 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     res = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor, d_high, f_hold,
                    long_, reuse=first if np.array_equal(d_low, d_high) else None, **at)
     loss = _losses(drive, res, f_hold)
-    corners = corners_of(env, res_low, loss, high=res, duty=d_high)
+    corners = corners_of(env, res_low, loss, high=res, duty=d_high, drive=drive)
     nom_grid = nominal_point(drive)
     nom = evaluate(drive, nom_grid.supply, nom_grid.ambient, nom_grid.r_factor, nom_grid.l_factor,
                    _nominal_duty(drive, plan, period), f_hold,
                    0.0 if pk.ticks is None else pk.ticks / board.tick.rate)
-    nominal = corners_of(nom_grid, nom, _losses(drive, nom, f_hold),
+    nominal = corners_of(nom_grid, nom, _losses(drive, nom, f_hold), drive=drive,
                          duty=_nominal_duty(drive, plan, period))[0]
     nominal = dataclasses.replace(nominal, label="nominal: " + nominal.label)
 
@@ -138,6 +139,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     thresholds = adc_thresholds(drive, res, res_low, hold.min_mean_current_a, env)
     offs = turn_offs(drive, env, res, peak_end, thresholds.trip_current_a)
     release = release_result(drive, env, res, offs)
+    topo = topology_result(drive, env, res, peak_end, thresholds.trip_current_a)
+    release = pumped_release(release, topo)
     pull_in = pull_in_result(drive, env, res, pk, shortest_peak_current(drive, res_low, short))
     thermal = thermal_result(drive, plan, f_hold, period, peak_time, offs, hold.freewheel_power_w,
                              hold.freewheel_elements_w)
@@ -152,6 +155,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     split = _split_result(drive, timer, int(np.min(plan.compare_low))) if split_decay(drive) else None
     arm, more, notes = closing_checks(drive, env, res_low, hold, loss, release, split)
     checks += more
+    notes += topology_cautions(drive, topo)
+    checks += bridge_checks(drive, topo)
     checks += thermal_checks(drive, pull_in.peak_time_s, thermal)
     if thermal is not None and thermal.cycle is not None:
         notes[2] = cycle_caution(thermal)   # the envelope's hot coil is the cycle's
@@ -162,7 +167,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                  checks=checks, cautions=notes, monte_carlo=None,
                  input_hash=drive.input_hash(), worst_corner_index=pk.k_pull, armature=arm,
                  split_decay=split, actuation_points=points, peak_table=pk.table,
-                 thermal_cycle=thermal)
+                 thermal_cycle=thermal, topology=topo)
     if samples > 0:
         from .montecarlo import monte_carlo
 

@@ -23,7 +23,7 @@ def summary_table(d: Design) -> Table:
     t.add_column("value", justify="right")
     t.add_column("where / how")
     h, r, tm, a = d.hold, d.release, d.timer, d.adc
-    rows = [*_tolerance_rows(d), *_pull_in_rows(d),
+    rows = [*_topology_rows(d), *_tolerance_rows(d), *_pull_in_rows(d),
         ("hold frequency", format_si(h.frequency_hz, "Hz", 6),
          f"prescaler {tm.prescaler}, period {tm.period_ticks} counts ({tm.frequency_error:+.3%})"),
         ("hold regulation", h.regulation.replace("_", " "), _regulation_how(d)),
@@ -54,6 +54,29 @@ def summary_table(d: Design) -> Table:
     for row in rows:
         t.add_row(*(escape(c) for c in row))
     return t
+
+
+def _topology_rows(d: Design) -> list:
+    """Where the switch sits and how low its node swings (none for a low-side switch)."""
+    t = d.topology
+    if t is None:
+        return []
+    b = t.bridge
+    if b is not None:
+        rows = [("switch topology", "full bridge",
+                 f"sense {t.sense_place}; hold: slow decay (two low-side switches), release: fast "
+                 "decay (body diodes into the supply)"),
+                ("energy back to the supply", f"{b.returned_per_release_j * 1e3:.4g} mJ",
+                 f"per release ({b.release_corner}); up to {b.returned_worst_j * 1e3:.4g} mJ at the "
+                 f"{b.worst_event}; per hold period {b.returned_per_hold_period_j:g} J (slow decay)")]
+        if not b.sink:
+            rows.append(("bus pump-up", f"+{b.pump_up_v:.4g} V",
+                         f"to {b.pumped_bus_v:.4g} V on {b.capacitance_f * 1e6:.4g} uF ({b.pump_event}, "
+                         f"{b.pump_corner}); switches up to {b.pumped_switch_voltage_v:.4g} V"))
+        return rows
+    return [("switch topology", t.name.replace("_", " "),
+             f"sense {t.sense_place}; the {t.switch_node} swings to {t.lowest_node_voltage_v:.4g} V "
+             f"at turn-off ({t.lowest_node_event}, {t.lowest_node_corner})")]
 
 
 def _tolerance_rows(d: Design) -> list:

@@ -158,7 +158,11 @@ class Check:
 
 @dataclass(frozen=True)
 class Corner:
-    """Figures at one operating corner. SI units, temperatures in degC."""
+    """Figures at one operating corner. SI units, temperatures in degC.
+
+    ``switch_node_voltage_v`` (a topology whose switch node is not the switch voltage,
+    :mod:`coildrive.model.topology`; ``None`` for a low-side switch): the node against
+    ground at the turn-offs that give ``peak_switch_voltage_v``."""
 
     label: str
     supply_v: float
@@ -181,6 +185,7 @@ class Corner:
     freewheel_power_w: float = math.nan
     switch_power_w: float = math.nan
     hold_duty: float = math.nan
+    switch_node_voltage_v: float | None = None
 
 
 #: Per-corner keys added with an ``[armature]`` (flattened into each JSON corner).
@@ -360,6 +365,60 @@ class ReleaseResult:
 
 
 @dataclass(frozen=True)
+class BridgeResult:
+    """A full bridge's decay paths and the energy its fast decay returns to the supply
+    (``design --json`` key ``topology.bridge``). Energies in J, voltages in V.
+
+    ``returned_per_release_j``: back to the bus at the release from the top of the hold
+    ripple (its worst corner ``release_corner``); ``returned_worst_j`` over every turn-off
+    (``worst_event``, ``worst_corner``); ``returned_per_hold_period_j``: 0, the hold's
+    off-times decay slowly and return nothing. With ``sink`` false the returned charge
+    lands on ``capacitance_f``: the bus rises from the supply to ``pumped_bus_v`` (the
+    highest over every turn-off and corner, ``pump_event``, ``pump_corner``; ``pump_up_v``
+    its rise there), and the switches see up to ``pumped_switch_voltage_v``.
+    """
+
+    hold_decay: str
+    release_decay: str
+    returned_per_release_j: float
+    release_corner: str
+    returned_worst_j: float
+    worst_event: str
+    worst_corner: str
+    returned_per_hold_period_j: float
+    sink: bool
+    capacitance_f: float
+    capacitor_rating_v: float
+    pumped_bus_v: float | None = None
+    pump_up_v: float | None = None
+    pump_event: str | None = None
+    pump_corner: str | None = None
+    pumped_switch_voltage_v: float | None = None
+
+
+@dataclass(frozen=True)
+class TopologyResult:
+    """Where the switch sits, for a topology other than the low-side switch (``design
+    --json`` key ``topology``; absent for a low-side switch, whose switch node is the
+    drain and whose figures are all in ``release``).
+
+    ``lowest_node_voltage_v`` is the lowest voltage of the switch node against ground at
+    any turn-off (end of hold, end of peak, over-current trip, every hold off-time), at
+    ``lowest_node_corner`` on ``lowest_node_event`` (``None`` for a full bridge, which has
+    ``bridge`` instead). ``sense_place`` says where ``sense_position`` puts the resistor.
+    """
+
+    name: str
+    switch_node: str
+    sense_position: str
+    sense_place: str
+    lowest_node_voltage_v: float | None = None
+    lowest_node_corner: str | None = None
+    lowest_node_event: str | None = None
+    bridge: BridgeResult | None = None
+
+
+@dataclass(frozen=True)
 class TimerResult:
     """PWM timer registers. ``prescaler`` and ``period_ticks`` are divide ratio and counts."""
 
@@ -477,6 +536,7 @@ class Design:
     armature: ArmatureResult | None = None
     split_decay: SplitDecayResult | None = None
     thermal_cycle: ThermalCycleResult | None = None
+    topology: TopologyResult | None = None
 
     @property
     def ok(self) -> bool:
@@ -508,6 +568,11 @@ class Design:
             "cautions": list(self.cautions),
         }
         out["nominal"] = _corner_dict(self.nominal)
+        if self.topology is not None:
+            topo = asdict(self.topology)
+            if topo["bridge"] is None:
+                del topo["bridge"]
+            out["topology"] = topo
         if self.armature is not None:
             out["armature"] = asdict(self.armature)
         if self.split_decay is not None:
@@ -528,6 +593,8 @@ class Design:
 def _corner_dict(c: Corner) -> dict:
     """A corner as JSON: the armature figures, when there are any, flattened in."""
     d = asdict(c)
+    if d["switch_node_voltage_v"] is None:  # a low-side switch: its node is the switch voltage
+        del d["switch_node_voltage_v"]
     arm = d.pop("armature")
     if arm is not None:
         d.update(arm)

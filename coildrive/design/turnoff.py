@@ -33,6 +33,8 @@ def element_energies(drive: Drive, lp: Loop, current) -> dict[str, np.ndarray]:
     q, s = decay_integrals(t0, i0, lp.r_off, lp.v_off, lp.inductance)
     fw = drive.freewheel
     zero = np.zeros_like(np.asarray(q, float))
+    if lp.bridge == "fast":  # the two body diodes (each takes half)
+        return {"diode": 2.0 * lp.diode(drive) * q + zero}
     if lp.bypassed:
         return {"diode": lp.diode(drive) * q, "bypass": fw.bypass_resistance * s}
     if fw.type == "clamp":
@@ -45,17 +47,27 @@ def element_energies(drive: Drive, lp: Loop, current) -> dict[str, np.ndarray]:
     return {k: v + zero for k, v in out.items()}
 
 
+def event_currents(res: PointResults, peak_end, trip_current: float) -> dict[str, np.ndarray]:
+    """The current (A) each turn-off event interrupts at each point of ``res`` (the end of
+    the peak ``peak_end``, the trip at ``trip_current``); non-finite currents as 0."""
+    currents = {"end of hold": np.asarray(res.hold.i_max, float),
+                "end of peak": np.broadcast_to(np.asarray(peak_end, float), np.shape(res.supply)),
+                "over-current trip": np.full(np.shape(res.supply), float(trip_current))}
+    return {event: np.where(np.isfinite(currents[event]), currents[event], 0.0) for event in EVENTS}
+
+
+def release_loop(res: PointResults) -> Loop:
+    """The path a turn-off opens (the fast one with split decay)."""
+    return res.release_loop if res.release_loop is not None else res.loop
+
+
 def turn_offs(drive: Drive, grid: CornerGrid, res: PointResults, peak_end, trip_current: float) -> list[dict]:
     """The three turn-off events at their worst corners of ``res`` (the points with the
     most current): ``event``, ``current_a``, ``corner``, ``switch_voltage_v`` (its worst
     corner may differ: ``switch_voltage_corner``), ``energy_j`` and ``elements_j``."""
-    lp_rel = res.release_loop if res.release_loop is not None else res.loop
-    currents = {"end of hold": np.asarray(res.hold.i_max, float),
-                "end of peak": np.broadcast_to(np.asarray(peak_end, float), np.shape(res.supply)),
-                "over-current trip": np.full(np.shape(res.supply), float(trip_current))}
+    lp_rel = release_loop(res)
     out = []
-    for event in EVENTS:
-        i = np.where(np.isfinite(currents[event]), currents[event], 0.0)
+    for event, i in event_currents(res, peak_end, trip_current).items():
         parts = element_energies(drive, lp_rel, i)
         energy = sum(parts.values())
         if event == "end of hold":

@@ -1,15 +1,8 @@
 """The driver circuit around the coil: loop resistances and voltages at operating points.
 
-Topology (low-side switch)::
-
-    V_bus ──┬───────────────┐
-            │            freewheel path (diode, diode+Zener, diode+resistor)
-          coil (R_coil(T), L)│
-            │  [R_sense if position = "coil"]
-            ├───────────────┘
-          drain ── switch (R_on) ── [R_sense if position = "switch"] ── ground
-            └── clamp (TVS, drain to ground) if freewheel type = "clamp"
-
+The coil's loop is the same for a low-side and a high-side switch (the circuits are
+drawn in :mod:`coildrive.model.low_side` and :mod:`coildrive.model.high_side`; where
+the switch node sits against ground is :mod:`coildrive.model.topology`'s business).
 Switch on: ``V_bus = (R_coil + R_switch + R_sense) i + L di/dt``.
 Switch off: ``L di/dt = -(R_off i + V_off)`` where, by freewheel type,
 
@@ -39,6 +32,14 @@ clamp         ``R_sense`` if in the coil path + ``R_bp``  ``V_diode`` (a diode +
 
 and the switch sees ``V_bus + V_diode + R_bp i``; the release (bypass open) takes the
 fast path of the table above. :func:`loop` gives either with ``path``.
+
+A full bridge (``switch.topology = "full_bridge"``, :mod:`coildrive.model.bridge`) drives
+through two switches (``R_on = R_coil + 2 R_switch + R_sense``); its hold path is the slow
+decay through the two low-side switches (``R_off = R_coil + 2 R_switch`` + ``R_sense``
+inline, ``V_off = 0``), its release path the fast decay through two body diodes into the
+bus (``R_off = R_coil + R_sense``, ``V_off = V_bus + 2 V_diode``); the switches see
+``V_bus`` in the slow decay and ``V_bus + V_diode`` (+ ``R_sense i`` from a common-return
+resistor) in the fast one.
 """
 
 from __future__ import annotations
@@ -48,6 +49,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..config import Drive
+from .bridge import fast_switch_voltage
 
 #: Temperature coefficient of resistance of annealed copper at 20 degC, 1/K (IEC 60028).
 COPPER_ALPHA = 0.00393
@@ -73,7 +75,8 @@ class Loop:
     ``bypassed`` is True for the slow path of a split-decay hold (the bypass switch
     shorts the fast element; see the module docstring). ``v_diode`` and ``v_fast`` are
     the freewheel diode's drop and the fast element's voltage (Zener or clamp) at each
-    point -- their tolerance corners; ``None``: the drive's values.
+    point -- their tolerance corners; ``None``: the drive's values. ``bridge`` is ``"slow"``
+    or ``"fast"`` for a full bridge's decay paths, ``""`` otherwise.
     """
 
     v_on: np.ndarray
@@ -86,6 +89,7 @@ class Loop:
     bypassed: bool = False
     v_diode: np.ndarray | None = None
     v_fast: np.ndarray | None = None
+    bridge: str = ""
 
     def diode(self, drive: Drive):
         """The freewheel diode's drop at each point (V)."""
@@ -101,6 +105,11 @@ class Loop:
     def switch_voltage(self, drive: Drive, current):
         """Switch (drain) voltage in V right after turning off ``current`` A."""
         fw = drive.freewheel
+        if self.bridge == "slow":  # the open high-side switches hold off the bus
+            return self.supply + 0.0 * np.asarray(current, float)
+        if self.bridge == "fast":
+            return fast_switch_voltage(self.supply, self.diode(drive), drive.board.sense.resistance,
+                                       drive.board.sense.position == "coil", current)
         if self.bypassed:
             return self.supply + self.diode(drive) + fw.bypass_resistance * np.asarray(current)
         if fw.type == "clamp":
@@ -112,6 +121,17 @@ def split_decay(drive: Drive) -> bool:
     """True when the hold and the release take different freewheel paths (split decay
     with a fast element to bypass)."""
     return drive.freewheel.split_decay and drive.freewheel.type != "diode"
+
+
+def full_bridge(drive: Drive) -> bool:
+    """True for a full bridge: slow decay in the hold, fast decay at the release."""
+    return drive.switch.topology == "full_bridge"
+
+
+def two_paths(drive: Drive) -> bool:
+    """True when the hold's off-times and the release take different paths (split decay
+    or a full bridge): the design evaluates the release on :func:`loop`'s release path."""
+    return split_decay(drive) or full_bridge(drive)
 
 
 def loop(drive: Drive, supply, coil_temp, r_factor=1.0, l_factor=1.0, path: str = "hold",
@@ -135,12 +155,21 @@ def loop(drive: Drive, supply, coil_temp, r_factor=1.0, l_factor=1.0, path: str 
     r_sense = sense.resistance * np.asarray(sense_factor, float)
     v_diode = fw.diode_drop * np.asarray(diode_factor, float)
     v_fast = (fw.clamp_voltage if fw.type == "clamp" else fw.zener_voltage) * np.asarray(fast_factor, float)
-    r_on = r_coil + drive.switch.on_resistance + r_sense
+    bridge = full_bridge(drive)
+    r_switch = drive.switch.on_resistance * (2.0 if bridge else 1.0)  # a bridge drives through two
+    r_on = r_coil + r_switch + r_sense
     if path not in ("hold", "release"):
         raise ValueError(f"path {path!r}: expected 'hold' or 'release'")
     bypassed = path == "hold" and split_decay(drive)
     r_sense_off = r_sense if sense.position == "coil" else 0.0
-    if bypassed:
+    kind = ("slow" if path == "hold" else "fast") if bridge else ""
+    if kind == "slow":  # recirculating through the two low-side switches
+        r_off = r_coil + r_sense_off + r_switch
+        v_off = 0.0 * supply
+    elif kind == "fast":  # two body diodes into the bus, through the sense resistor either way
+        r_off = r_coil + r_sense
+        v_off = supply + 2.0 * v_diode
+    elif bypassed:
         r_off = r_coil + r_sense_off + fw.bypass_resistance
         v_off = v_diode + 0.0 * supply
     else:
@@ -157,7 +186,8 @@ def loop(drive: Drive, supply, coil_temp, r_factor=1.0, l_factor=1.0, path: str 
     # read-only broadcast views: no copies of scalars spread over many points
     supply, r_on, r_off, v_off, inductance, r_coil, v_diode, v_fast = arrays
     return Loop(v_on=supply, r_on=r_on, r_off=r_off, v_off=v_off, inductance=inductance,
-                r_coil=r_coil, supply=supply, bypassed=bypassed, v_diode=v_diode, v_fast=v_fast)
+                r_coil=r_coil, supply=supply, bypassed=bypassed, v_diode=v_diode, v_fast=v_fast,
+                bridge=kind)
 
 
 def freewheel_element_energy(drive: Drive, lp: Loop, charge, square):
@@ -169,6 +199,10 @@ def freewheel_element_energy(drive: Drive, lp: Loop, charge, square):
     diode and bypass switch for the slow path of split decay (``lp.bypassed``).
     """
     fw = drive.freewheel
+    if lp.bridge == "slow":  # the low-side switches' conduction: the switch's, not a freewheel element's
+        return 0.0 * np.asarray(charge, float)
+    if lp.bridge == "fast":  # the two body diodes; the bus takes V_bus x charge back
+        return 2.0 * lp.diode(drive) * np.asarray(charge)
     if lp.bypassed:
         return lp.diode(drive) * np.asarray(charge) + fw.bypass_resistance * np.asarray(square)
     if fw.type == "clamp":

@@ -21,6 +21,10 @@ bypass switch          ``R_bp S_off / T`` (split decay: the hold's slow path is 
                        diode and the bypass switch, the fast element takes nothing)
 =====================  ==========================================================
 
+A full bridge (``lp.bridge == "slow"``) drives through two switches and recirculates
+through the two low-side ones: switch conduction ``2 R_switch (S_on + S_off) / T``, no
+freewheel element.
+
 (``Q`` = integral of ``i``, ``S`` = integral of ``i^2``.) In steady state the inductor's
 energy is the same at the start and end of every period, so the supply power equals the
 sum of the others exactly (the tests check this). Switching loss is not part of that
@@ -138,7 +142,11 @@ def element_powers(drive: Drive, lp: Loop, charge_on, square_on, charge_off, squ
         fw.zener_voltage if zener_voltage is None else zener_voltage)
     rf = fw.resistance if resistance is None else resistance
     bypass_p = zero
-    if bypassed:
+    if getattr(lp, "bridge", "") == "slow":
+        cond = 2.0 * drive.switch.on_resistance * (s_on + s_off)
+        diode_p, zener_p, res_p, clamp_p = zero, zero, zero, zero
+        v_turn_off = lp.supply + 0.0 * q_on
+    elif bypassed:
         r_bp = fw.bypass_resistance
         diode_p, zener_p, res_p, clamp_p = vd * q_off, zero, zero, zero
         bypass_p = r_bp * s_off

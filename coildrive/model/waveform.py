@@ -21,8 +21,9 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..config import Drive
-from .circuit import loop, split_decay
+from .circuit import full_bridge, loop, split_decay
 from .rl import decay_current, decay_time, rise_current
+from .topology import coil_voltage, sense_leg_drop, topology_of
 
 
 @dataclass(frozen=True)
@@ -37,7 +38,9 @@ class Waveform:
     ``position`` (gap, m: stroke when open, 0 seated) and ``velocity`` (m/s) are
     ``None`` without an armature. ``bypass_on`` (0/1, split decay only, else ``None``)
     is the bypass switch: 1 while it shorts the fast-decay element; ``events`` then has
-    ``bypass_open``.
+    ``bypass_open``. ``node_voltage`` (the switch node to ground, V) and ``coil_voltage``
+    (across the coil's terminals, V) are there for topologies whose switch node is not
+    the switch voltage (``Topology.shows_node``; ``None`` for a low-side switch).
     """
 
     time: np.ndarray
@@ -50,10 +53,13 @@ class Waveform:
     position: np.ndarray | None = None
     velocity: np.ndarray | None = None
     bypass_on: np.ndarray | None = None
+    node_voltage: np.ndarray | None = None
+    coil_voltage: np.ndarray | None = None
 
     def to_csv(self) -> str:
         """CSV text with header ``time_s,current_a,switch_on,switch_voltage_v,sense_current_a``
-        (then ``bypass_on`` with split decay, ``position_m,velocity_m_s`` with an armature)."""
+        (then ``bypass_on`` with split decay, ``position_m,velocity_m_s`` with an armature,
+        ``node_voltage_v,coil_voltage_v`` with a high-side switch)."""
         buf = io.StringIO()
         cols = [self.time, self.current, self.switch_on, self.switch_voltage, self.sense_current]
         head = "time_s,current_a,switch_on,switch_voltage_v,sense_current_a"
@@ -66,6 +72,10 @@ class Waveform:
             cols += [self.position, self.velocity]
             head += ",position_m,velocity_m_s"
             fmt += ["%.9e", "%.9e"]
+        if self.node_voltage is not None:
+            cols += [self.node_voltage, self.coil_voltage]
+            head += ",node_voltage_v,coil_voltage_v"
+            fmt += ["%.6e", "%.6e"]
         buf.write(head + "\n")
         np.savetxt(buf, np.column_stack(cols), delimiter=",", fmt=fmt)
         return buf.getvalue()
@@ -104,8 +114,10 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
     cs.append(i_hold)
     ons.append(on_hold)
 
-    # Release: decay to zero.
-    return release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_offedge, i_off, big, label)
+    # Release: decay to zero (a full bridge's through its fast path).
+    fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") if full_bridge(drive) else lp
+    return release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_offedge, i_off, big, label,
+                            release_lp=fast)
 
 
 def peak_samples(peak_time: float, v: float, r_on: float, ind: float, big: int,
@@ -121,12 +133,15 @@ def peak_samples(peak_time: float, v: float, r_on: float, ind: float, big: int,
 
 
 def release_waveform(drive: Drive, lp, supply: float, ts: list, cs: list, ons: list,
-                     peak_time: float, t_off: float, i_off: float, big: int, label: str) -> Waveform:
+                     peak_time: float, t_off: float, i_off: float, big: int, label: str,
+                     release_lp=None) -> Waveform:
     """Close an actuation without split decay: append the free decay from ``i_off`` A at
     the final turn-off ``t_off`` s down to zero through the off path of ``lp`` (``big``
-    samples) to the sample pieces ``ts``/``cs``/``ons`` (s, A, 0/1), and make the
-    :class:`Waveform` of them (switch-on at 0 s, the hold from ``peak_time`` s)."""
-    r_off, v_off, ind = (float(x) for x in (lp.r_off, lp.v_off, lp.inductance))
+    samples) -- or of ``release_lp``, a full bridge's fast path -- to the sample pieces
+    ``ts``/``cs``/``ons`` (s, A, 0/1), and make the :class:`Waveform` of them (switch-on at
+    0 s, the hold from ``peak_time`` s)."""
+    rel = lp if release_lp is None else release_lp
+    r_off, v_off, ind = (float(x) for x in (rel.r_off, rel.v_off, rel.inductance))
     tz = float(decay_time(0.0, i_off, r_off, v_off, ind))
     td = np.linspace(0.0, tz, big + 1)[1:]
     ts.append(t_off + td)
@@ -136,8 +151,11 @@ def release_waveform(drive: Drive, lp, supply: float, ts: list, cs: list, ons: l
     current = np.concatenate(cs)
     on = np.concatenate(ons).astype(np.int8)
     v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
+    if rel is not lp:  # the release's switch voltage from its own path
+        v_sw = np.where(time > t_off, _switch_and_sense(drive, rel, supply, current, on)[0], v_sw)
     events = {"on": 0.0, "hold": peak_time, "off": t_off, "zero": t_off + tz}
-    return Waveform(time, current, on, v_sw, sense, events, label)
+    return Waveform(time, current, on, v_sw, sense, events, label,
+                    **node_columns(drive, supply, current, on, v_sw))
 
 
 def _split_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_time: float,
@@ -218,7 +236,8 @@ def split_waveform(drive: Drive, lp, fast, supply: float, ts: list, cs: list, on
     slow_v, sense = _switch_and_sense(drive, lp, supply, current, on)
     fast_v, _ = _switch_and_sense(drive, fast, supply, current, on)
     v_sw = np.where(bypass == 1, slow_v, fast_v)
-    return Waveform(time, current, on, v_sw, sense, events, label, bypass_on=bypass)
+    return Waveform(time, current, on, v_sw, sense, events, label, bypass_on=bypass,
+                    **node_columns(drive, supply, current, on, v_sw))
 
 
 def _switch_and_sense(drive: Drive, lp, supply: float, current, on):
@@ -229,6 +248,17 @@ def _switch_and_sense(drive: Drive, lp, supply: float, current, on):
     v_sw = np.where(on == 1, current * r_sw, np.where(current > 0, fw_v, off_blocked))
     sense = current if drive.board.sense.position == "coil" else current * on
     return v_sw, sense
+
+
+def node_columns(drive: Drive, supply: float, current, on, v_sw) -> dict:
+    """``node_voltage`` and ``coil_voltage`` (V) of a :class:`Waveform` whose topology shows
+    them (:mod:`coildrive.model.topology`), from its current A, switch state and switch
+    voltage V; empty for a low-side switch."""
+    topo = topology_of(drive)
+    if not topo.shows_node:
+        return {}
+    node = topo.node_voltage(supply, v_sw, sense_leg_drop(drive, current, on))
+    return {"node_voltage": node, "coil_voltage": coil_voltage(drive, supply, current, on, v_sw)}
 
 
 def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float,
@@ -356,7 +386,8 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
         if times:
             events[name] = times[-1] if name == "open" else times[0]
     return Waveform(tr.time, current, on, v_sw, sense, events, label, position=tr.position,
-                    velocity=tr.velocity, bypass_on=bypass)
+                    velocity=tr.velocity, bypass_on=bypass,
+                    **node_columns(drive, supply, current, on, v_sw))
 
 
 def hold_samples(t_start: float, i0: float, v: float, r_on: float, r_off: float, v_off: float,

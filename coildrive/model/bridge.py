@@ -1,0 +1,205 @@
+"""The full bridge's two decay paths, the energy they return to the supply, and the bus
+pump-up when the supply cannot take it back.
+
+Four switches (on-resistance ``R_sw`` each, body-diode drop ``V_d``) put the coil between
+the bridge's two legs, A and B::
+
+    V_bus ──┬──────────────┬──────────── (bulk capacitance C across the bus)
+           Q1             Q3            high-side switches, body diodes to the bus
+            A ── coil ──── B            coil: R_coil(T), L; [R_sense inline: position "coil"]
+           Q2             Q4            low-side switches, body diodes from the rail
+            └──────┬───────┘
+                [R_sense: position "switch", the common return] ── ground
+
+* drive (Q1 + Q4 on): ``V_bus = (R_coil + 2 R_sw + R_sense) i + L di/dt``;
+* slow decay (Q2 + Q4 on, the current recirculating through the two low-side switches,
+  past a common-return sense resistor): ``0 = (R_coil + 2 R_sw [+ R_sense inline]) i +
+  L di/dt``; nothing goes back to the supply;
+* fast decay (all off): the current flows on from ground through Q2's body diode, the
+  coil, and Q3's body diode into the bus -- through the sense resistor in either
+  position -- so the coil sees ``-(V_bus + 2 V_d)``: ``L di/dt = -((R_coil + R_sense) i +
+  V_bus + 2 V_d)``. Node B rises to ``V_bus + V_d``, node A falls to ``-V_d``: the
+  switches see ``V_bus + V_d``. The supply takes back ``V_bus * int i dt``; the diodes
+  take ``2 V_d int i dt``, the copper and the sense resistor the rest of ``1/2 L i0^2``.
+
+When the supply cannot sink current (a diode in its feed, a source that only sources),
+the returned charge lands on the bulk capacitance alone, and the bus rises as the coil
+empties. The coil then decays against ``V_c(t) + 2 V_d`` -- a series RLC circuit,
+``L di/dt = -(R i + V_c + 2 V_d)``, ``C dV_c/dt = i`` -- whose current is closed form
+(under-, critically or overdamped) and stops at its first zero (the body diodes
+block). :func:`pump_up` gives the bus voltage then, ``V_2``, with ``1/2 C (V_2^2 - V_1^2)``
+the energy returned.
+
+Physics only; SI units (A, V, ohm, H, F, s, J); every function broadcasts over arrays.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .rl import decay_integrals, decay_time
+
+
+@dataclass(frozen=True)
+class DecayPath:
+    """A decay path ``L di/dt = -(r_off i + v_off)`` (ohm, V) and the voltage the supply
+    pushes back against (``v_return``, V: the bus for the fast path, 0 for the slow)."""
+
+    r_off: np.ndarray
+    v_off: np.ndarray
+    v_return: np.ndarray
+
+
+def slow_decay(r_coil, r_switch, r_sense, sense_inline: bool) -> DecayPath:
+    """The slow path: both low-side switches on, the current recirculating through them
+    (and through the sense resistor only when it sits inline with the coil)."""
+    r = np.asarray(r_coil, float) + 2.0 * np.asarray(r_switch, float) + (
+        np.asarray(r_sense, float) if sense_inline else 0.0)
+    zero = np.zeros(np.shape(r))
+    return DecayPath(r, zero, zero)
+
+
+def fast_decay(r_coil, r_sense, supply, v_diode) -> DecayPath:
+    """The fast path: all switches off, the current through two body diodes back into
+    the bus (and through the sense resistor in either position)."""
+    r = np.asarray(r_coil, float) + np.asarray(r_sense, float)
+    supply = np.asarray(supply, float)
+    return DecayPath(r + 0.0 * supply, supply + 2.0 * np.asarray(v_diode, float) + 0.0 * r, supply + 0.0 * r)
+
+
+def fast_switch_voltage(supply, v_diode, r_sense, sense_inline: bool, current):
+    """The highest switch voltage (V) while ``current`` A decays fast: node B at ``V_bus +
+    V_d``, node A at ``-V_d``, and with the sense resistor in the common return the rail
+    below the low-side switches at ``-R_sense i`` -- so Q1 and Q4 see ``V_bus + V_d`` (+
+    ``R_sense i`` from a common-return resistor)."""
+    drop = 0.0 if sense_inline else np.asarray(r_sense, float) * np.asarray(current, float)
+    return np.asarray(supply, float) + np.asarray(v_diode, float) + drop
+
+
+@dataclass(frozen=True)
+class Release:
+    """A decay from ``i0`` A to zero through one path at a fixed bus: the time to the
+    drop-out current and to zero (s), the charge through the coil (C), and where the
+    coil's stored energy ``1/2 L i0^2`` goes (J): ``returned`` to the supply,
+    ``resistive`` in the loop's resistances, ``diodes`` in the body diodes (the rest of
+    the path's constant voltage, ``v_off - v_return``)."""
+
+    drop_time: np.ndarray
+    zero_time: np.ndarray
+    charge: np.ndarray
+    returned: np.ndarray
+    resistive: np.ndarray
+    diodes: np.ndarray
+
+
+def release(path: DecayPath, i0, i_drop, inductance) -> Release:
+    """The decay of ``i0`` A through ``path`` (closed form, :mod:`coildrive.model.rl`).
+
+    A path with no opposing voltage (the slow one) never reaches zero in finite time:
+    its ``zero_time`` is infinite, and its integrals are those of the whole exponential
+    tail (``charge = L i0 / r``, ``square = L i0^2 / (2 r)``)."""
+    i0 = np.asarray(i0, float)
+    t_drop = decay_time(i_drop, i0, path.r_off, path.v_off, inductance)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t_zero = np.where(path.v_off > 0, decay_time(0.0, i0, path.r_off, path.v_off, inductance), np.inf)
+    finite = np.where(np.isfinite(t_zero), t_zero, 0.0)
+    q, s = decay_integrals(finite, i0, path.r_off, path.v_off, inductance)
+    tail_q = np.asarray(inductance, float) * i0 / path.r_off
+    tail_s = np.asarray(inductance, float) * i0**2 / (2.0 * path.r_off)
+    q = np.where(np.isfinite(t_zero), q, tail_q)
+    s = np.where(np.isfinite(t_zero), s, tail_s)
+    return Release(t_drop, t_zero, q, path.v_return * q, path.r_off * s,
+                   (path.v_off - path.v_return) * q)
+
+
+@dataclass(frozen=True)
+class PumpUp:
+    """The bus after a fast decay into the bulk capacitance alone: ``v2`` (V) when the
+    current has stopped, ``delta_v = v2 - v1``, ``returned`` = ``1/2 C (v2^2 - v1^2)``
+    (J), the time the current takes to stop (s) and the charge it moved (C)."""
+
+    v2: np.ndarray
+    delta_v: np.ndarray
+    returned: np.ndarray
+    zero_time: np.ndarray
+    charge: np.ndarray
+
+
+def pump_up(i0, v1, capacitance, r_off, inductance, v_diode) -> PumpUp:
+    """The bus voltage after the fast decay of ``i0`` A into a capacitance of
+    ``capacitance`` F charged to ``v1`` V, through the loop resistance ``r_off`` ohm and two
+    body-diode drops ``v_diode`` V (the supply cannot take current back).
+
+    With ``q`` the charge into the capacitor and ``x = q + C (v1 + 2 V_d)``, the loop
+    gives ``L x'' + R x' + x / C = 0``, ``x(0) = C (v1 + 2 V_d)``, ``x'(0) = i0``: the
+    series RLC circuit of any circuits textbook, with ``alpha = R / 2L`` and ``omega0 =
+    1 / sqrt(LC)``. The current ``i = x'`` stops at its first zero:
+
+    * underdamped (``omega0 > alpha``, ``omega_d = sqrt(omega0^2 - alpha^2)``): ``i =
+      e^(-alpha t) (i0 cos omega_d t - (alpha b + omega_d a) sin omega_d t)`` with ``a =
+      x(0)``, ``b = (i0 + alpha a) / omega_d``: zero at ``atan2(i0, alpha b + omega_d a) /
+      omega_d``;
+    * overdamped (``s1,2 = -alpha +/- beta``): ``x = c1 e^(s1 t) + c2 e^(s2 t)``: zero where
+      ``e^(2 beta t) = -s2 c2 / (s1 c1)``;
+    * critically damped: ``i = e^(-alpha t) (i0 - alpha (i0 + alpha a) t)``.
+    """
+    i0, v1, c = (np.asarray(x, float) for x in (i0, v1, capacitance))
+    r, ind = np.asarray(r_off, float), np.asarray(inductance, float)
+    i0, v1, c, r, ind, vd = np.broadcast_arrays(i0, v1, c, r, ind, np.asarray(v_diode, float))
+    a = c * (v1 + 2.0 * vd)
+    alpha = r / (2.0 * ind)
+    w0sq = 1.0 / (ind * c)
+    disc = w0sq - alpha**2
+    scale = np.maximum(w0sq, alpha**2)
+    under = disc > 1e-12 * scale
+    over = disc < -1e-12 * scale
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        # underdamped
+        wd = np.sqrt(np.where(under, disc, 1.0))
+        b = (i0 + alpha * a) / wd
+        t_u = np.arctan2(i0, alpha * b + wd * a) / wd
+        x_u = np.exp(-alpha * t_u) * (a * np.cos(wd * t_u) + b * np.sin(wd * t_u))
+        # overdamped
+        beta = np.sqrt(np.where(over, -disc, 1.0))
+        s1, s2 = -alpha + beta, -alpha - beta
+        c1 = (i0 - s2 * a) / (s1 - s2)
+        c2 = a - c1
+        t_o = np.log(-s2 * c2 / (s1 * c1)) / (s1 - s2)
+        x_o = c1 * np.exp(s1 * t_o) + c2 * np.exp(s2 * t_o)
+        # critically damped
+        k = i0 + alpha * a
+        t_c = i0 / (alpha * k)
+        x_c = (a + k * t_c) * np.exp(-alpha * t_c)
+    t_zero = np.where(under, t_u, np.where(over, t_o, t_c))
+    x = np.where(under, x_u, np.where(over, x_o, x_c))
+    q = x - a
+    v2 = v1 + q / c
+    return PumpUp(v2, v2 - v1, 0.5 * c * (v2**2 - v1**2), t_zero, q)
+
+
+
+@dataclass(frozen=True)
+class FullBridge:
+    """:class:`~coildrive.model.topology.Topology` of a full bridge. Its two legs swing
+    in turn; ``simulate`` gives the highest of the four switches' voltages
+    (``switch_voltage_v``) and the design the energy the fast decay returns."""
+
+    name: str = "full_bridge"
+    node: str = "leg A (the coil's end the high-side switch drives)"
+    sense_places: dict = field(default_factory=lambda: {
+        "coil": "inline with the coil (reads the current always)",
+        "switch": "in the common return below the low-side switches (reads only while driving)"})
+    shows_node: bool = False
+
+    def node_voltage(self, supply, switch_voltage, sense_drop):
+        """Leg A to ground, V: the bus less its high-side switch's voltage."""
+        return np.asarray(supply, float) - np.asarray(switch_voltage, float) - np.asarray(sense_drop, float)
+
+    def switch_peak_from_node(self, supply: float, node_peak: float, node_lowest: float) -> tuple[float, str]:
+        """A probe on leg B reads the low-side switch's voltage directly."""
+        return node_peak, "highest sampled leg voltage"
+
+
+TOPOLOGY = FullBridge()

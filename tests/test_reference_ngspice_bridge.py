@@ -1,0 +1,172 @@
+"""The full bridge's decay paths (coildrive.model.bridge) against ngspice transients.
+
+Reference: ngspice (batch mode, ``ngspice -b``). The netlist is the bridge at element
+level, written here from invented element values (a 24 V valve-like coil):
+
+    VSUP -- feed -- bus --+-- Q1 --+-- A -- VM -- RCOIL -- LCOIL -- B --+-- Q3 --+
+                          |        +-- Q2 --+                          +-- Q4 --+
+                        CBULK               rail -- RSENSE (common return) -- ground
+
+* Each switch is ngspice's voltage-controlled switch (an ``S`` element with a ``SW``
+  model; ngspice manual, "Circuit Elements and Models", "Elementary Devices": "Switches"
+  and "Switch Model (SW/CSW)"): ``RON`` the switch's on-resistance, ``VT = 0.5`` V on a
+  0..1 V gate, ``ROFF = 1e9`` ohm (see tests/test_reference_ngspice_high_side.py).
+* Each switch's body diode is the constant-drop one-way device of the other references
+  (:func:`ngspice_run.knee`: knee at the diode drop, 1 mohm beyond), the model's law.
+* The supply feed: a 0 V source (an ammeter) when the supply takes current back; a
+  one-way device with its knee at 0 V (an ideal diode, 1 mohm) when it cannot, so that
+  the returned charge lands on ``CBULK`` alone.
+
+Checks (1 %, times plus one step): the rise (two switches and the sense resistor in the
+loop), the fast decay (release time, time to zero, the switches' voltage, the energy
+returned to the supply), the slow decay (release time, nothing returned), and the bus
+pump-up into the bulk capacitance (the bus voltage when the current stops, and when).
+"""
+
+from __future__ import annotations
+
+import pytest
+
+from ngspice_run import OPTIONS, knee, run
+from coildrive.model.bridge import fast_decay, fast_switch_voltage, pump_up, release, slow_decay
+from coildrive.model.rl import rise_current, rise_time
+
+pytestmark = pytest.mark.ngspice
+
+EDGE = 1e-9  # s, gate edges
+R_OFF_SWITCH = 1e9  # ohm, the switches' ROFF
+
+#: Invented element values: a 24 V valve coil, hot, on a bridge of 35 mohm switches.
+V_SUP, R_COIL, L_COIL = 24.0, 26.0, 0.069
+R_SW, R_SENSE, V_D = 0.035, 0.1, 0.8
+I_DROP = 0.1
+
+
+def _netlist(title, gates, tstop, tmax, measures, *, sink=True, capacitance=100e-6, inline=False):
+    """The bridge with gate sources ``gates`` (Q1..Q4 -> a PULSE or DC spec)."""
+    feed = "VFEED sup bus DC 0" if sink else knee("BFEED", "sup", "bus", 0.0)
+    coil = (["VM a n1 DC 0", f"RSENSE n1 n2 {R_SENSE!r}", f"RCOIL n2 n3 {R_COIL!r}",
+             f"LCOIL n3 b {L_COIL!r} IC=0", "VRAIL rail 0 DC 0"] if inline else
+            ["VM a n1 DC 0", f"RCOIL n1 n2 {R_COIL!r}", f"LCOIL n2 b {L_COIL!r} IC=0",
+             f"RSENSE rail 0 {R_SENSE!r}"])
+    switches = []
+    for k, (d, s) in enumerate((("bus", "a"), ("a", "rail"), ("bus", "b"), ("b", "rail")), start=1):
+        switches += [f"S{k} {d} {s} g{k} 0 SWITCH", knee(f"BD{k}", s, d, V_D), f"VG{k} g{k} 0 {gates[k]}"]
+    lines = [f"* {title}", f"VSUP sup 0 DC {V_SUP!r}", feed,
+             f"CBULK bus 0 {capacitance!r} IC={V_SUP!r}", *coil, *switches,
+             f".model SWITCH SW(VT=0.5 VH=0 RON={R_SW!r} ROFF={R_OFF_SWITCH!r})", OPTIONS,
+             ".control", f"tran {tmax!r} {tstop!r} 0 {tmax!r} uic", *measures, "quit 0", ".endc", ".end"]
+    return "\n".join(lines) + "\n"
+
+
+def _pulse(start, width):
+    """A gate on from ``start`` for ``width`` s (switch closed between the edges' midpoints)."""
+    return f"PULSE(0 1 {start!r} {EDGE} {EDGE} {width - EDGE!r} 1e3)"
+
+
+def _on_until(end):
+    """A gate on from the start (no edge at t = 0) until ``end`` s (its edge's midpoint)."""
+    return f"PULSE(1 0 {end - EDGE / 2!r} {EDGE} {EDGE} 1 1e3)"
+
+
+#: s, Q4 opens this long after Q1: two switches changing state at the same instant stop
+#: ngspice ("timestep too small ... trouble with switch-instance"); in between the current
+#: flows on through Q4 and Q2's body diode, losing ``V_d / L x 10 ns`` (1e-7 A).
+STAGGER = 10e-9
+
+
+def _on_time():
+    r_on = R_COIL + 2 * R_SW + R_SENSE
+    return r_on, 1.5 * float(rise_time(0.55, 0.0, V_SUP, r_on, L_COIL))
+
+
+def test_bridge_rise_matches_ngspice(tmp_path):
+    r_on, t_on = _on_time()
+    t_pull = float(rise_time(0.55, 0.0, V_SUP, r_on, L_COIL))
+    step = t_pull / 2000
+    gates = {1: _pulse(0.0, 1.0), 2: "DC 0", 3: "DC 0", 4: "DC 1"}
+    res = run(tmp_path, "bridge-rise", _netlist(
+        "bridge-rise", gates, 1.2 * t_on, step,
+        ["meas tran tpull WHEN i(VM)=0.55 RISE=1", f"meas tran ion FIND i(VM) AT={t_on!r}"]))
+    # ngspice: the rise through two switches and the sense resistor within 1 % (+ a step)
+    assert abs(res["tpull"] - t_pull) <= 0.01 * t_pull + step, (res["tpull"], t_pull)
+    i_on = float(rise_current(t_on, 0.0, V_SUP, r_on, L_COIL))
+    assert res["ion"] == pytest.approx(i_on, rel=0.01)
+
+
+@pytest.mark.parametrize("inline", [False, True], ids=["sense-common-return", "sense-inline"])
+def test_fast_decay_returns_energy_to_the_supply_as_ngspice_does(tmp_path, inline):
+    r_on, t_on = _on_time()
+    i0 = float(rise_current(t_on, 0.0, V_SUP, r_on, L_COIL))
+    path = fast_decay(R_COIL, R_SENSE, V_SUP, V_D)
+    rel = release(path, i0, I_DROP, L_COIL)
+    t_zero = float(rel.zero_time)
+    step = t_zero / 4000
+    t_off = t_on + EDGE / 2 + STAGGER
+    tend = t_off + 1.3 * t_zero
+    after = f"from={t_off!r} to={tend!r}"
+    gates = {1: _pulse(0.0, t_on), 2: "DC 0", 3: "DC 0", 4: _on_until(t_off)}
+    measures = ["let back = -v(bus) * i(VFEED)", "let vq1 = v(bus) - v(a)", "let vq4 = v(b) - v(rail)",
+                f"meas tran ioff FIND i(VM) AT={t_off!r}",
+                f"meas tran tdrop WHEN i(VM)={I_DROP!r} FALL=1",
+                "meas tran tzero WHEN i(VM)=1e-6 FALL=1",
+                f"meas tran eback INTEG back {after}",
+                f"meas tran vq1max MAX vq1 {after}", f"meas tran vq4max MAX vq4 {after}"]
+    res = run(tmp_path, "bridge-fast", _netlist("bridge-fast", gates, tend, step, measures, inline=inline))
+    assert res["ioff"] == pytest.approx(i0, rel=0.01)
+    # ngspice transient: time to drop-out and to zero within 1 % plus one step
+    for name, t_model in (("tdrop", float(rel.drop_time)), ("tzero", t_zero)):
+        assert abs(res[name] - t_off - t_model) <= 0.01 * t_model + step, (name, res[name] - t_off, t_model)
+    # ngspice: the energy the supply takes back (V_bus x charge) within 1 %
+    assert res["eback"] == pytest.approx(float(rel.returned), rel=0.01), (res["eback"], float(rel.returned))
+    # ngspice: Q1 and Q4 see V_bus + V_d (+ R_sense i from a common-return resistor), within 1 %
+    v_sw = float(fast_switch_voltage(V_SUP, V_D, R_SENSE, inline, i0))
+    for name in ("vq1max", "vq4max"):
+        assert res[name] == pytest.approx(v_sw, rel=0.01), (name, res[name], v_sw)
+
+
+def test_slow_decay_recirculates_and_returns_nothing_as_ngspice_does(tmp_path):
+    r_on, t_on = _on_time()
+    i0 = float(rise_current(t_on, 0.0, V_SUP, r_on, L_COIL))
+    path = slow_decay(R_COIL, R_SW, R_SENSE, sense_inline=False)
+    rel = release(path, i0, I_DROP, L_COIL)
+    t_drop = float(rel.drop_time)
+    step = t_drop / 4000
+    t_off = t_on + EDGE / 2
+    tend = t_off + 1.2 * t_drop
+    # Q1 opens at t_on, Q2 closes 2 ns later (a dead time: Q2's body diode carries the
+    # current for those 2 ns); Q4 stays on
+    gates = {1: _pulse(0.0, t_on), 2: _pulse(t_on + 2 * EDGE, 1.0), 3: "DC 0", 4: "DC 1"}
+    measures = ["let back = -v(bus) * i(VFEED)", f"meas tran ioff FIND i(VM) AT={t_off!r}",
+                f"meas tran tdrop WHEN i(VM)={I_DROP!r} FALL=1",
+                f"meas tran eback INTEG back from={t_off + 10 * EDGE!r} to={tend!r}"]
+    res = run(tmp_path, "bridge-slow", _netlist("bridge-slow", gates, tend, step, measures))
+    assert res["ioff"] == pytest.approx(i0, rel=0.01)
+    # ngspice transient: the slow decay's time to drop-out within 1 % plus one step
+    assert abs(res["tdrop"] - t_off - t_drop) <= 0.01 * t_drop + step, (res["tdrop"] - t_off, t_drop)
+    # ngspice: nothing goes back to the supply (leakage only, far below the stored energy)
+    assert abs(res["eback"]) < 1e-4 * 0.5 * L_COIL * i0**2, res["eback"]
+    assert float(rel.returned) == 0.0
+
+
+@pytest.mark.parametrize("capacitance", [22e-6, 470e-6], ids=["22uF", "470uF"])
+def test_pump_up_into_the_bulk_capacitance_matches_ngspice(tmp_path, capacitance):
+    r_on, t_on = _on_time()
+    t_off = t_on + EDGE / 2 + STAGGER
+    gates = {1: _pulse(0.0, t_on), 2: "DC 0", 3: "DC 0", 4: _on_until(t_off)}
+    # the model's own decay time at a fixed bus bounds the pump-up run from above
+    i_est = float(rise_current(t_on, 0.0, V_SUP, r_on, L_COIL))
+    t_fixed = float(release(fast_decay(R_COIL, R_SENSE, V_SUP, V_D), i_est, I_DROP, L_COIL).zero_time)
+    step = t_fixed / 4000
+    tend = t_off + 1.3 * t_fixed
+    measures = [f"meas tran ioff FIND i(VM) AT={t_off!r}", f"meas tran v1 FIND v(bus) AT={t_off!r}",
+                "meas tran tzero WHEN i(VM)=1e-6 FALL=1",
+                f"meas tran v2 MAX v(bus) from={t_off!r} to={tend!r}"]
+    res = run(tmp_path, "bridge-pump", _netlist("bridge-pump", gates, tend, step, measures,
+                                                sink=False, capacitance=capacitance))
+    pu = pump_up(res["ioff"], res["v1"], capacitance, R_COIL + R_SENSE, L_COIL, V_D)
+    # ngspice: the rise of the bus (V2 - V1) within 1 %, and when the current stops (1 % + a step)
+    assert res["v2"] - res["v1"] == pytest.approx(float(pu.delta_v), rel=0.01), (res["v2"] - res["v1"], float(pu.delta_v))
+    assert abs(res["tzero"] - t_off - float(pu.zero_time)) <= 0.01 * float(pu.zero_time) + step
+    # the bus rising against the coil stops it sooner than a fixed bus would
+    assert float(pu.zero_time) < t_fixed
