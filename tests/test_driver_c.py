@@ -210,3 +210,44 @@ def test_supply_compensated_peak_takes_its_length_from_the_header(tmp_path):
                                      ("run", d.pull_in.peak_ticks + 5)])
         assert run.events()[:2] == [(1, ON, 0), (1 + peak, PEAK_END, 0)], f"supply code {supply}"
     assert _peak_at(d, d.adc.supply_max_code) < _peak_at(d, d.adc.supply_min_code)
+
+
+def test_shorted_turns_trip_below_the_rise_limit(tmp_path):
+    """The rise check (docs/firmware.md): the first conversion at or above RISE_CODE after
+    n conversions from the switch-on, at supply code s, is SHORTED_TURNS when n x s is
+    below RISE_LIMIT, the switch off in that conversion; one conversion later passes. The
+    model's current climbs SLEW codes a conversion, so it first reads the code at
+    conversion ceil(code / slew)."""
+    d = example_design("demo-valve")
+    rc = d.rise_check
+    assert rc.limit > 0 and rc.by_supply
+    s = nominal_supply_code(d)
+    n_ok = -(-rc.limit // s)                  # the fewest conversions that pass at s
+    per_tick = conversions_per_tick(d)
+    for n, trips in ((n_ok - 1, True), (n_ok, False)):
+        slew = next(k for k in range(1, rc.code + 1) if -(-rc.code // k) == n)
+        folder = tmp_path / str(n)
+        folder.mkdir()
+        run = run_host(folder, d, [("supply", s), ("full", 2 * d.adc.pull_in_code), ("slew", slew), ("on", 0),
+                                   ("run", n // per_tick + 3)])
+        faults = [(t, c, v) for t, c, k, v in run.calls("e") if k == FAULT]
+        # the switch goes on at tick 1, conversion 0 (n = 0); conversion n sees the code
+        seen = divmod(per_tick + n, per_tick)
+        if trips:
+            assert faults == [(*seen, int(FaultCode.SHORTED_TURNS))], (n, s, rc.limit)
+            assert switch_offs(run, 1)[0] == seen, "off in the conversion that sees it"
+            assert run.states()[-1] == (FAULT_STATE, int(FaultCode.SHORTED_TURNS))
+        else:
+            assert faults == [], (n, s, rc.limit)
+            assert run.states()[-1] == (PEAK, 0)
+
+
+def test_rise_check_off_where_the_design_says_so(tmp_path):
+    """The relay's 8-bit sense gives a rise code under 8 codes: RISE_LIMIT is 0 and the
+    fastest rise passes (the harness climbs at the ADC's full scale in one conversion;
+    the over-current code is above it and the design's pull-in code is reached)."""
+    d = example_design("relay-12v")
+    assert d.rise_check.limit == 0 and "codes of zero" in d.rise_check.why_off
+    run = run_host(tmp_path, d, [("supply", nominal_supply_code(d)), ("full", d.adc.pull_in_code), ("slew", 0xFFFF),
+                                 ("on", 0), ("run", 4)])
+    assert not [e for e in run.events() if e[1] == FAULT]

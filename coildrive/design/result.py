@@ -327,6 +327,40 @@ class AdcThresholds:
 
 
 @dataclass(frozen=True)
+class RiseCheck:
+    """The fast-rise diagnostic (shorted turns): the current passing ``code`` sooner after
+    switch-on than any healthy coil of the envelope can make it pass.
+
+    The driver counts conversions (one a PWM period, ``conversion_hz``) from the
+    switch-on to the first one at or above ``code`` (``current_a`` as the channel reads
+    it); ``n`` of them at a supply-sense reading ``s`` is a fault when
+    ``n x s < limit`` (``n < limit`` on a board that does not sense its supply,
+    ``by_supply`` False): the rise time scales with 1/V. ``fastest_s`` is the healthy
+    rise to the code (the reading
+    high by the channel's tolerance and ``noise_codes``) at the corner that sets the
+    limit, ``fastest_corner``; ``fastest_product`` its conversions x lowest supply reading; ``limit`` is ``margin`` of that.
+    ``trip_inductance_factor``: with an inductance below this fraction of the rise's
+    nominal (``inductance_h``), the check trips at every supply and temperature of the
+    envelope (a conversion late, the reading low, the supply read high). ``limit`` 0:
+    the check is off (``why_off`` says why). See docs/firmware.md.
+    """
+
+    code: int
+    current_a: float
+    conversion_hz: float
+    by_supply: bool
+    limit: int
+    margin: float
+    noise_codes: int
+    fastest_s: float
+    fastest_product: float
+    fastest_corner: str
+    inductance_h: float
+    trip_inductance_factor: float
+    why_off: str = ""
+
+
+@dataclass(frozen=True)
 class DutyTable:
     """Supply-compensated hold: compare value for each supply-sense ADC code (ascending).
 
@@ -375,6 +409,7 @@ class Design:
     peak_table: PeakTable | None = None
     armature: ArmatureResult | None = None
     split_decay: SplitDecayResult | None = None
+    rise_check: RiseCheck | None = None
 
     @property
     def ok(self) -> bool:
@@ -415,6 +450,8 @@ class Design:
             out["current_mode"] = current_mode
         if self.monte_carlo is not None:
             out["monte_carlo"] = self.monte_carlo
+        if self.rise_check is not None:
+            out["rise_check"] = asdict(self.rise_check)
         return json_ready(out)
 
 

@@ -11,7 +11,9 @@
  * The scenario (scenario.h, written by the test) is a list of {op, argument} pairs. Each
  * tick runs CONVERSIONS_PER_TICK conversions (pwm_isr, then adc_isr) and then coil_tick().
  * A small integer coil model gives the current: it climbs toward FULL x compare / period
- * while the switch is on and decays by a quarter per conversion while it is off. The
+ * by a quarter of the way per conversion, at most SLEW codes (RISE_SLEW, a rise the
+ * driver's shorted-turns check passes, until a "slew" step changes it), while the switch
+ * is on and decays by a quarter per conversion while it is off. The
  * hooks only log into RAM, so the timed calls hold no UART waits and no model arithmetic.
  */
 #include <stdint.h>
@@ -26,6 +28,7 @@
 #define OP_MODE 6u
 #define OP_FULL 7u
 #define OP_DIP 8u
+#define OP_SLEW 9u
 #define MODE_COIL 0u
 #define MODE_OPEN 1u
 #define MODE_SHORT 2u
@@ -80,7 +83,7 @@ static uint8_t log_len;
 static uint16_t now_tick, now_conv;
 static uint8_t sw, bypass;
 static uint32_t compare;
-static uint16_t current, supply, full, dip_at;
+static uint16_t current, supply, full, dip_at, slew = RISE_SLEW;
 static uint8_t mode;
 
 static void log_add(uint8_t kind, int32_t value)
@@ -171,7 +174,8 @@ static void model(void)
     } else if (sw) {
         uint16_t target = (uint16_t)((uint32_t)full * compare / COIL_TIMER_PERIOD_COUNTS);
         if (target >= current) {
-            current = (uint16_t)(current + (target - current + 3u) / 4u);
+            uint16_t step = (uint16_t)((target - current + 3u) / 4u);
+            current = (uint16_t)(current + (step > slew ? slew : step));
         } else {
             current = (uint16_t)(current - (current - target) / 4u);
         }
@@ -220,6 +224,8 @@ int main(void)
             mode = (uint8_t)arg;
         } else if (op == OP_FULL) {
             full = arg;
+        } else if (op == OP_SLEW) {
+            slew = arg;
         } else if (op == OP_DIP) {
             dip_at = (uint16_t)(now_tick + arg);
         } else {
