@@ -147,7 +147,7 @@ def test_supply_out_of_range_is_reported_and_the_coil_never_switched_on(tmp_path
         emu = Emulator(DEMO, "--firmware", str(firmware), "--noise", "1", "--seed", "3", "--supply", supply,
                        log=log)
         try:
-            r = run_cli("capture", emu.path, "--drive", str(DEMO), "--out", str(out), "--duration", "0.5",
+            r = run_cli("capture", emu.path, "--drive", str(DEMO), "--out", str(out), "--duration", "1.5",
                         timeout=TIMEOUT)
         finally:
             emu.stop()

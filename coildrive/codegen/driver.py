@@ -7,7 +7,8 @@ types) and the few diagnostic figures the driver needs that the Design does not 
 each comes from Design fields by a rule written beside it (and in docs/firmware.md).
 
 :func:`budget_notes` says what the driver's handlers take of their periods at the
-board's clock, from cycle counts measured on a simulated 8-bit target.
+board's clock: cycle counts measured on a simulated 8-bit target (simavr), or for a board
+whose ``core`` is a Cortex-M, cycle bounds from the instructions QEMU executed.
 """
 
 from __future__ import annotations
@@ -183,6 +184,32 @@ def render_driver(design: Design, prefix: str = "coil") -> dict[str, str]:
 #: shares printed are an upper bound there. The test measures again and fails if a
 #: figure exceeds its bound or falls 10 % below it.
 HANDLER_CYCLES = {"adc_isr": 340, "pwm_isr": 11, "tick": 692, "threshold_isr": 137}
+#: Worst-case cycle bounds of each handler on Cortex-M cores, over the same drive shapes
+#: and script (tests/test_driver_qemu.py): arm-none-eabi-gcc 12.2 -Os builds run under
+#: QEMU 7.2 (mps2-an385: Cortex-M3, and the ARMv6-M code of the M0+; mps2-an386:
+#: Cortex-M4) with an execution trace, every instruction executed charged its worst
+#: cycles in the core's instruction timing table (Arm's Technical Reference Manuals, from
+#: memory), zero flash wait states; ``threshold_isr`` is the worse of the threshold and the
+#: off-timer handlers. QEMU counts instructions, not cycles: CORTEX_INSTRUCTIONS are the
+#: instructions executed on those worst paths. The test measures again and fails if a
+#: figure exceeds its bound or all fall 10 % below it.
+CORTEX_CYCLES = {
+    "cortex-m0plus": {"adc_isr": 324, "pwm_isr": 13, "tick": 525, "threshold_isr": 121},
+    "cortex-m3": {"adc_isr": 305, "pwm_isr": 8, "tick": 505, "threshold_isr": 102},
+    "cortex-m4": {"adc_isr": 305, "pwm_isr": 8, "tick": 505, "threshold_isr": 102},
+}
+CORTEX_INSTRUCTIONS = {
+    "cortex-m0plus": {"adc_isr": 176, "pwm_isr": 4, "tick": 373, "threshold_isr": 63},
+    "cortex-m3": {"adc_isr": 147, "pwm_isr": 2, "tick": 305, "threshold_isr": 53},
+    "cortex-m4": {"adc_isr": 147, "pwm_isr": 2, "tick": 305, "threshold_isr": 53},
+}
+#: How each core's figures were had, for the printed timing line.
+_CYCLE_SOURCES = {
+    "": "worst cycles measured on an 8-bit AVR, an upper bound for a 32-bit core",
+    "avr": "worst cycles measured on an 8-bit AVR (simavr)",
+    **{core: f"worst-case cycles of a {core.replace('plus', '+').replace('cortex-m', 'Cortex-M')} from the "
+             "instructions QEMU executed, zero flash wait states" for core in CORTEX_CYCLES},
+}
 #: The driver's static state (bytes): the largest .bss over those shapes, from
 #: avr-gcc 5.4 (ATmega328P) and arm-none-eabi-gcc 12.2 (Cortex-M0+ and M4 alike).
 _STATE_BYTES = {"avr": 42, "arm": 47}
@@ -206,18 +233,27 @@ class HandlerShare:
         return self.cycles / self.period_cycles
 
 
+def handler_cycles(core: str) -> dict[str, int]:
+    """Worst cycles of each handler on a board's ``core``: the Cortex-M bounds where the
+    board names a Cortex-M core, else the AVR measurement (an upper bound for a 32-bit
+    core when the board names none)."""
+    return CORTEX_CYCLES.get(core, HANDLER_CYCLES)
+
+
 def handler_shares(design: Design) -> list[HandlerShare]:
     """The PWM/ADC handlers (both run once a PWM period) against the PWM period, and the
     tick against the tick period, at the board's timer clock taken as the CPU clock; in
     current mode also the threshold (or off-timer) handler, which runs at each switching
-    edge, against half a switching cycle at the design's highest switching frequency."""
+    edge, against half a switching cycle at the design's highest switching frequency.
+    Cycles per the board's ``core`` (:func:`handler_cycles`)."""
     clock = design.drive.board.timer.clock
-    pwm = HANDLER_CYCLES["adc_isr"] + HANDLER_CYCLES["pwm_isr"]
+    cycles = handler_cycles(design.drive.board.core)
+    pwm = cycles["adc_isr"] + cycles["pwm_isr"]
     shares = [HandlerShare("pwm_isr + adc_isr", pwm, clock / design.timer.frequency_hz, "PWM period"),
-              HandlerShare("tick", HANDLER_CYCLES["tick"], clock / design.drive.board.tick.rate, "tick")]
+              HandlerShare("tick", cycles["tick"], clock / design.drive.board.tick.rate, "tick")]
     cm = design.hold.current_mode
     if cm is not None and cm.max_frequency_hz > 0:
-        shares.append(HandlerShare("threshold_isr", HANDLER_CYCLES["threshold_isr"],
+        shares.append(HandlerShare("threshold_isr", cycles["threshold_isr"],
                                    clock / (2.0 * cm.max_frequency_hz), "switching edge"))
     return shares
 
@@ -273,7 +309,7 @@ def budget_notes(design: Design, prefix: str = "coil") -> list[str]:
     mhz = board.timer.clock / 1e6
     notes.append("timing at " + f"{mhz:.4g} MHz: " + "; ".join(
         f"{h.name} {h.cycles:,} of {h.period_cycles:,.0f} cycles a {h.period} ({100 * h.share:.1f} %)"
-        for h in shares) + " (worst cycles measured on an 8-bit AVR, an upper bound for a 32-bit core)")
+        for h in shares) + f" ({_CYCLE_SOURCES[board.core]})")
     for h in shares:
         text = (f"{h.name} takes {100 * h.share:.1f} % of the {h.period} ({h.cycles:,} of "
                 f"{h.period_cycles:,.0f} cycles at {mhz:.4g} MHz)")

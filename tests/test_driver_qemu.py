@@ -1,0 +1,77 @@
+"""The reference driver's handlers timed on a Cortex-M under QEMU (tests/cortex_trace.py).
+
+Outside sources: arm-none-eabi-gcc builds tests/data/driver_target.c (the scripted program
+simavr runs, tests/test_driver_simavr.py) for a Cortex-M0+, M3 and M4; QEMU 7.2 runs it on
+its mps2-an385 / mps2-an386 models and prints the same hook calls, events and states as the
+host build (gcc). QEMU is not cycle accurate and models no cycle counter we could read, so
+the figures are the instructions executed (from QEMU's execution trace, one instruction per
+block) and a cycle bound from them (each instruction at its worst cost in the core's timing
+table: Arm's Cortex-M0+ and Cortex-M4 Technical Reference Manuals, from memory; zero flash
+wait states). firmware-driver's Cortex-M budget (coildrive.codegen.driver.CORTEX_CYCLES)
+and docs/firmware.md give these figures.
+"""
+
+from __future__ import annotations
+
+import pytest
+
+from coildrive.codegen.driver import CORTEX_CYCLES, CORTEX_INSTRUCTIONS
+from cortex_trace import CORES, disassemble, run, symbols
+from driver_harness import budget_script, budget_shapes, run_host
+
+pytestmark = pytest.mark.compiler
+
+SHAPES = budget_shapes()
+measured: dict[tuple[str, str], tuple[dict[str, int], dict[str, int]]] = {}
+
+
+def _combined(figures: dict[str, int]) -> dict[str, int]:
+    """The threshold and off-timer handlers as one figure (they run at the switching edges)."""
+    out = {k: v for k, v in figures.items() if k != "off_timer_isr"}
+    if "off_timer_isr" in figures:
+        out["threshold_isr"] = max(out.get("threshold_isr", 0), figures["off_timer_isr"])
+    return out
+
+
+@pytest.mark.parametrize("core", list(CORES))
+@pytest.mark.parametrize("name", [n for n, _ in SHAPES])
+def test_cortex_runs_what_the_host_build_runs(tmp_path, name, core):
+    d = dict(SHAPES)[name]
+    script = budget_script(d)
+    host = run_host(tmp_path, d, script)
+    (tmp_path / core).mkdir()
+    arm = run(tmp_path / core, d, script, core)
+
+    def same(lines):
+        return [line for line in lines if not line.startswith("c ")]
+
+    assert same(arm.lines) == same(host.lines)
+    assert arm.lines[-1] == "end"
+    instructions, cycles = _combined(arm.instructions), _combined(arm.cycles)
+    measured[(name, core)] = (instructions, cycles)
+    assert set(instructions) >= {"adc_isr", "pwm_isr", "tick"}
+    for handler, c in cycles.items():
+        assert c <= CORTEX_CYCLES[core][handler], f"{name} on {core}: {handler} {c} cycles above the bound"
+        assert instructions[handler] <= CORTEX_INSTRUCTIONS[core][handler], f"{name} on {core}: {handler}"
+        assert instructions[handler] <= c, "no instruction takes less than a cycle"
+    # the trace against the disassembly: pwm_isr has one straight path (its own code and
+    # the adc_start hook), so its instructions are exactly those of the two functions
+    elf = tmp_path / core / f"{core}.elf"
+    insns, syms = disassemble(elf), symbols(elf)
+
+    def length(function: str) -> int:
+        start = syms[function]
+        end = min(x for x in syms.values() if x > start)
+        return sum(1 for a in insns if start <= a < end)
+    assert instructions["pwm_isr"] == length("coil_pwm_isr") + length("coil_port_adc_start")
+
+
+def test_cortex_bounds_are_tight():
+    if len(measured) < len(SHAPES) * len(CORES):
+        pytest.skip("needs every shape's run on every core (run the whole file)")
+    for core, bounds in CORTEX_CYCLES.items():
+        for handler, bound in bounds.items():
+            worst = max(m[1].get(handler, 0) for (_, c), m in measured.items() if c == core)
+            assert worst >= 0.9 * bound, f"{core} {handler}: worst {worst} cycles, the bound {bound} is loose"
+            worst_i = max(m[0].get(handler, 0) for (_, c), m in measured.items() if c == core)
+            assert worst_i == CORTEX_INSTRUCTIONS[core][handler], f"{core} {handler}: {worst_i} instructions"
