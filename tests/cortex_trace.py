@@ -40,7 +40,7 @@ HANDLERS = ("adc_isr", "pwm_isr", "tick", "threshold_isr", "off_timer_isr")
 #: Cortex-M3/M4 (Arm Cortex-M4 TRM, "Instruction set summary", cycle counts; from memory):
 #: data processing 1, a load or store 2 (1 when pipelined: 2 taken), LDRD/STRD 3,
 #: LDM/STM/PUSH/POP 1 + N registers (+ P when POP loads pc), a taken branch 1 + P, BL 1 + P,
-#: MUL 1, MLA/MLS 2, long multiplies 1 (M4) or up to 5 (M3), UDIV/SDIV up to 12.
+#: TBB/TBH 2 + P, MUL 1, MLA/MLS 2, long multiplies 1 (M4) or up to 5 (M3), UDIV/SDIV up to 12.
 #: Cortex-M0+ (Arm Cortex-M0+ TRM, "Instruction set summary"; from memory): data
 #: processing 1, loads and stores 2, LDM/STM/PUSH 1 + N, POP 1 + N (3 + N with pc), a taken
 #: branch 2, BL 3, BX/BLX 2, MULS 1 (the fast multiplier; 32 with the small one).
@@ -116,6 +116,8 @@ def cost(insn: Insn, taken: bool, core: str) -> int:
     refill = c["refill"]
     if m in ("mla", "mls"):
         return 2
+    if base in ("tbb", "tbh"):
+        return 2 + refill
     if m in ("bl", "blx") or (m.startswith("b") and (base in ("b", "bx") or m in ("bls", "bhi")))\
             or base in ("cbz", "cbnz"):
         return 1 + refill if taken else 1

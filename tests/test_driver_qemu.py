@@ -16,7 +16,7 @@ from __future__ import annotations
 import pytest
 
 from coildrive.codegen.driver import CORTEX_CYCLES, CORTEX_INSTRUCTIONS
-from cortex_trace import CORES, disassemble, run, symbols
+from cortex_trace import CORES, Insn, cost, disassemble, run, symbols
 from driver_harness import budget_script, budget_shapes, run_host
 
 pytestmark = pytest.mark.compiler
@@ -75,3 +75,22 @@ def test_cortex_bounds_are_tight():
             assert worst >= 0.9 * bound, f"{core} {handler}: worst {worst} cycles, the bound {bound} is loose"
             worst_i = max(m[0].get(handler, 0) for (_, c), m in measured.items() if c == core)
             assert worst_i == CORTEX_INSTRUCTIONS[core][handler], f"{core} {handler}: {worst_i} instructions"
+
+
+# Per-instruction worst cycles, Arm Cortex-M4 TRM and Cortex-M0+ TRM instruction timing
+# tables (from memory): (mnemonic, operands, taken) -> cycles.
+M4_TABLE = [("adds", "r3, #1", False, 1), ("ldr", "r3, [r2, #4]", False, 2), ("strb.w", "r1, [r3, #9]", False, 2),
+            ("push", "{r3, r4, r5, r6, r7, lr}", False, 7), ("pop", "{r3, r4, r5, r6, r7, pc}", True, 10),
+            ("bne.n", "1a4 <x>", True, 4), ("bne.n", "1a4 <x>", False, 1), ("bl", "1a4 <coil_tick>", True, 4),
+            ("bx", "lr", True, 4), ("cbz", "r0, 1a4 <x>", True, 4), ("tbb", "[pc, r3]", True, 5),
+            ("mls", "r0, r1, r2, r3", False, 2), ("udiv", "r0, r1, r2", False, 12), ("ldr.w", "pc, [sp], #4", True, 5),
+            ("itt", "ne", False, 1), ("ldmia.w", "r3, {r0, r1, r2}", False, 4)]
+M0_TABLE = [("adds", "r3, #1", False, 1), ("ldr", "r3, [r2, #4]", False, 2), ("push", "{r4, lr}", False, 3),
+            ("pop", "{r4, pc}", True, 5), ("bne.n", "1a4 <x>", True, 2), ("bne.n", "1a4 <x>", False, 1),
+            ("bl", "1a4 <coil_tick>", True, 3), ("bx", "lr", True, 2), ("muls", "r0, r1", False, 1)]
+
+
+@pytest.mark.parametrize("core, table", [("cortex-m4", M4_TABLE), ("cortex-m3", M4_TABLE), ("cortex-m0plus", M0_TABLE)])
+def test_instruction_costs_follow_the_timing_tables(core, table):
+    for mnemonic, operands, taken, cycles in table:
+        assert cost(Insn(0, 2, mnemonic, operands), taken, core) == cycles, (core, mnemonic, operands)

@@ -195,8 +195,8 @@ HANDLER_CYCLES = {"adc_isr": 340, "pwm_isr": 11, "tick": 692, "threshold_isr": 1
 #: figure exceeds its bound or all fall 10 % below it.
 CORTEX_CYCLES = {
     "cortex-m0plus": {"adc_isr": 324, "pwm_isr": 13, "tick": 525, "threshold_isr": 121},
-    "cortex-m3": {"adc_isr": 305, "pwm_isr": 8, "tick": 505, "threshold_isr": 102},
-    "cortex-m4": {"adc_isr": 305, "pwm_isr": 8, "tick": 505, "threshold_isr": 102},
+    "cortex-m3": {"adc_isr": 305, "pwm_isr": 8, "tick": 509, "threshold_isr": 102},
+    "cortex-m4": {"adc_isr": 305, "pwm_isr": 8, "tick": 509, "threshold_isr": 102},
 }
 CORTEX_INSTRUCTIONS = {
     "cortex-m0plus": {"adc_isr": 176, "pwm_isr": 4, "tick": 373, "threshold_isr": 63},
