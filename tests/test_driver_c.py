@@ -14,6 +14,9 @@ from coildrive.design.regulation import table_lookup
 from coildrive.bench.messages import EventKind, FaultCode
 from coildrive.codegen.header import HeaderView
 from coildrive.codegen.driver import OC_BLANK_SAMPLES, SUPPLY_SAMPLES, dip_codes, open_load_ticks
+from coildrive.config import load_drive
+from coildrive.design import design
+from conftest import BOARDS, EXAMPLES
 from driver_harness import conversions_per_tick, example_design, run_host
 
 pytestmark = pytest.mark.compiler
@@ -251,3 +254,30 @@ def test_rise_check_off_where_the_design_says_so(tmp_path):
     run = run_host(tmp_path, d, [("supply", nominal_supply_code(d)), ("full", d.adc.pull_in_code), ("slew", 0xFFFF),
                                  ("on", 0), ("run", 4)])
     assert not [e for e in run.events() if e[1] == FAULT]
+
+
+def test_rise_check_without_supply_sense_counts_conversions_alone(tmp_path):
+    """A board that does not read its supply (no [supply_sense]): the limit is in
+    conversions alone (RISE_BY_SUPPLY 0, designed at the highest supply), so n below
+    RISE_LIMIT trips and n = RISE_LIMIT passes (the demo valve on its board with the
+    supply divider taken out, a fixed hold and peak)."""
+    import re
+    board = tmp_path / "nosense.toml"
+    board.write_text(re.sub(r"\n\[supply_sense\][^\[]*", "\n", (BOARDS / "lab-m32-zener.toml").read_text()))
+    text = (EXAMPLES / "demo-valve.toml").read_text().replace('board = "lab-m32-zener"', f'board = "{board}"')
+    text = text.replace('regulation = "supply_table"', 'regulation = "fixed"').replace("compensate = true", "compensate = false")
+    drive = tmp_path / "demo.toml"
+    drive.write_text(text)
+    d = design(load_drive(drive))
+    rc = d.rise_check
+    assert not rc.by_supply and rc.limit > 0
+    per_tick = conversions_per_tick(d)
+    for n, trips in ((rc.limit - 1, True), (rc.limit, False)):
+        slew = next(k for k in range(1, rc.code + 1) if -(-rc.code // k) == n)
+        folder = tmp_path / str(n)
+        folder.mkdir()
+        run = run_host(folder, d, [("supply", 0), ("full", 2 * d.adc.pull_in_code), ("slew", slew), ("on", 0),
+                                   ("run", n // per_tick + 3)])
+        faults = [(t, c, v) for t, c, k, v in run.calls("e") if k == FAULT]
+        expected = [(*divmod(per_tick + n, per_tick), int(FaultCode.SHORTED_TURNS))] if trips else []
+        assert faults == expected, (n, rc.limit)
