@@ -148,7 +148,9 @@ def budget_script(d) -> list[tuple[str, int]]:
     if d.armature is not None:
         from coildrive.codegen.header import HeaderView
         hv = HeaderView(d)
-        early, late = hv.value("SEAT_EARLIEST_TICKS"), hv.value("SEAT_LATEST_TICKS")
+        from coildrive.codegen.driver import seat_grace_ticks
+        early = hv.value("SEAT_EARLIEST_TICKS")
+        late = hv.value("SEAT_LATEST_TICKS") + seat_grace_ticks(d)
         script += [("full", d.adc.pull_in_code + 200), ("on", 0), ("run", 1), ("dip", early + 1),
                    ("run", late + 3), ("off", 0), ("run", lock), ("on", 0), ("run", late + 3),
                    ("clear", 0), ("run", lock)]

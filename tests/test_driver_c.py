@@ -13,7 +13,7 @@ from coildrive.design.regulation import table_lookup
 
 from coildrive.bench.messages import EventKind, FaultCode
 from coildrive.codegen.header import HeaderView
-from coildrive.codegen.driver import OC_BLANK_SAMPLES, SUPPLY_SAMPLES, dip_codes, open_load_ticks
+from coildrive.codegen.driver import OC_BLANK_SAMPLES, SUPPLY_SAMPLES, dip_codes, open_load_ticks, seat_grace_ticks
 from coildrive.config import load_drive
 from coildrive.design import design
 from conftest import BOARDS, EXAMPLES
@@ -153,7 +153,8 @@ def test_fault_clears_through_the_lockout(tmp_path):
 def test_armature_seat_ends_the_peak_and_no_seat_is_stuck(tmp_path):
     d = example_design("locker-latch-12v")
     hv = HeaderView(d)
-    early, late = hv.value("SEAT_EARLIEST_TICKS"), hv.value("SEAT_LATEST_TICKS")
+    # the stuck check waits SEAT_GRACE_TICKS past the latest seat (the climb that shows it)
+    early, late = hv.value("SEAT_EARLIEST_TICKS"), hv.value("SEAT_LATEST_TICKS") + seat_grace_ticks(d)
     assert dip_codes(d) >= 2
     common = [("supply", nominal_supply_code(d)), ("full", d.adc.pull_in_code + 200)]
     seat_at = early + 3

@@ -56,20 +56,24 @@ def open_load_ticks(design: Design) -> int:
 
 
 def dip_codes(design: Design) -> int:
-    """The fall and the climb in ADC codes that mark the armature's seat in the current dip.
+    """The fall and the climb in ADC codes that mark the armature's seat in the current dip:
+    the design's (:func:`coildrive.design.diagnostics.dip_codes`, a quarter of the
+    shallowest dip over the corners, at least four codes)."""
+    if design.seat_check is not None:
+        return design.seat_check.dip_codes
+    from ..design.diagnostics import dip_codes as rule
+    return rule(design.drive, [c.armature.get("dip_depth_a", math.nan) for c in design.corners if c.armature])
 
-    Rule: a quarter of the shallowest dip over the design's corners (each corner's
-    ``dip_depth_a``: the hump before the dip less its bottom), at least four codes. A
-    quarter: the fall is seen early in the dip, and the climb after the bottom within a
-    fraction of a millisecond on the example latch; four codes stay clear of an ADC's
-    noise of a code or two (common practice).
-    """
-    depths = [c.armature.get("dip_depth_a") for c in design.corners if c.armature]
-    depths = [x for x in depths if x is not None and math.isfinite(x) and x > 0]
-    if not depths:
-        return 4
-    board = design.drive.board
-    return max(4, math.floor(0.25 * min(depths) * design.adc.volts_per_amp / board.adc.reference * 2**board.adc.bits))
+
+def seat_grace_ticks(design: Design) -> int:
+    """Ticks past SEAT_LATEST_TICKS that a seat is still taken and the stuck check waits.
+
+    Rule: the seat is seen when the current has climbed DIP_CODES above the bottom of the
+    dip; the design's longest climb after the seat (``seat_check.climb_s``) in ticks,
+    rounded up, + 1 for the tick's phase (as the open-load ticks)."""
+    sc = design.seat_check
+    climb = sc.climb_s if sc is not None and math.isfinite(sc.climb_s) else 0.0
+    return math.ceil(climb * design.drive.board.tick.rate - 1e-9) + 1
 
 
 class DriverView:
@@ -143,6 +147,12 @@ class DriverView:
         if self.armature:
             self.constants.append(Constant(f"{m}_DRIVER_DIP_CODES", dip_codes(d),
                                            "seat: fall and climb of the current dip, codes"))
+            sc = d.seat_check
+            self.constants.append(Constant(
+                f"{m}_DRIVER_SEAT_GRACE_TICKS", seat_grace_ticks(d),
+                "seat: taken, and STUCK waited for, this long past SEAT_LATEST_TICKS (the climb "
+                + (f"{sc.climb_s * 1e3:.3g} ms" if sc is not None and math.isfinite(sc.climb_s) else "not designed")
+                + ", +1 tick)"))
         longest = max(d.pull_in.peak_ticks, d.release.lockout_ticks, open_load_ticks(d), 255)
         self.tick_type = c_uint_type(max(longest, 0x100))
         self.event_kinds = [(k.name, int(k)) for k in DRIVER_EVENTS]

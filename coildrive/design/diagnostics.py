@@ -13,6 +13,10 @@ inductance at their low tolerances, at every supply of the file, as the supply r
 lowest and the current highest), with a margin; :func:`rise_check` also says below which
 inductance it trips at every corner. A short that develops while the coil is held is not
 seen until the next switch-on (the over-current check covers the hard short).
+
+With an ``[armature]``, :func:`seat_check` gives the driver's seat detector its codes
+(the dip's fall and climb) and the time the climb takes after the seat, so that the
+armature's latest healthy seat is seen before the stuck check gives up.
 """
 
 from __future__ import annotations
@@ -26,7 +30,7 @@ from ..model.rl import rise_time
 from .corners import CornerGrid
 from .envelope import reading_factors, supply_codes
 from .evaluate import PointResults
-from .result import RiseCheck
+from .result import RiseCheck, SeatCheck
 
 #: The rise code as a fraction of the weakest final current (V/R at the hot coil, the
 #: lowest supply), as the channel reads it low: early in the rise, where its time goes
@@ -95,3 +99,51 @@ def rise_check(drive: Drive, grid: CornerGrid, res: PointResults, conversion_hz:
                      noise_codes=NOISE_CODES, fastest_s=fastest,
                      fastest_product=float(product[k]), fastest_corner=grid.label(k),
                      inductance_h=float(base_l), trip_inductance_factor=factor, why_off=why)
+
+
+def dip_codes(drive: Drive, depths) -> int:
+    """The fall and the climb in ADC codes that mark the armature's seat in the current dip.
+
+    Rule: a quarter of the shallowest dip over the corners (each corner's dip depth in A:
+    the hump before the dip less its bottom), at least four codes. A quarter: the fall is
+    seen early in the dip, and the climb after the bottom within a fraction of a
+    millisecond on the example latch; four codes stay clear of an ADC's noise of a code or
+    two (common practice).
+    """
+    d = np.asarray(depths, float)
+    d = d[np.isfinite(d) & (d > 0)]
+    if d.size == 0:
+        return 4
+    board = drive.board
+    vpa = board.sense.resistance * board.sense.gain
+    return max(4, math.floor(0.25 * float(np.min(d)) * vpa / board.adc.reference * 2**board.adc.bits))
+
+
+def seat_check(drive: Drive, grid: CornerGrid, res: PointResults) -> SeatCheck | None:
+    """The seat detector's codes and the longest climb it waits for after the seat, over the
+    corners of ``res`` (``None`` without an armature). The climb: from the bottom of the dip
+    (the armature at rest on its seat, no motional EMF) the seated coil's RL rise with the
+    switch on, to ``dip_codes`` + 1 codes above it as the channel reads it low."""
+    a = res.armature
+    if a is None or drive.armature is None:
+        return None
+    pin = a.pull_in
+    codes = dip_codes(drive, pin.dip_depth)
+    board = drive.board
+    lsb_a = board.adc.reference / 2**board.adc.bits / (board.sense.resistance * board.sense.gain)
+    low, _ = reading_factors(drive)
+    climb = (codes + 1) * lsb_a / low
+    lp = res.loop
+    v = np.asarray(lp.v_on, float)
+    ind = drive.armature.inductance_closed * np.broadcast_to(np.asarray(res.l_factor, float), v.shape)
+    i_dip = np.asarray(pin.dip_current, float)
+    seated = np.isfinite(i_dip)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        t = np.asarray(rise_time(i_dip + climb, i_dip, v, np.asarray(lp.r_on, float), ind), float)
+    t = np.where(seated, t, np.nan)
+    reachable = np.isfinite(t)
+    k = int(np.nanargmax(np.where(reachable, t, np.nan))) if reachable.any() else 0
+    return SeatCheck(dip_codes=codes, climb_a=float(climb),
+                     climb_s=float(t[k]) if reachable.any() else math.nan,
+                     climb_corner=grid.label(k) if reachable.any() else "",
+                     unseen_corners=int(np.sum(seated & ~reachable)))

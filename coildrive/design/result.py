@@ -361,6 +361,21 @@ class RiseCheck:
 
 
 @dataclass(frozen=True)
+class SeatCheck:
+    """The driver's seat detector (``[armature]`` drives): the dip's fall and climb in ADC
+    codes (``dip_codes``), the true current the climb may need (``climb_a``), and the
+    longest time it takes after the seat over the corners (``climb_s``, at
+    ``climb_corner``): the stuck check waits that long past the latest seat.
+    ``unseen_corners``: seated corners where the current cannot climb that far."""
+
+    dip_codes: int
+    climb_a: float
+    climb_s: float
+    climb_corner: str
+    unseen_corners: int
+
+
+@dataclass(frozen=True)
 class DutyTable:
     """Supply-compensated hold: compare value for each supply-sense ADC code (ascending).
 
@@ -410,6 +425,7 @@ class Design:
     armature: ArmatureResult | None = None
     split_decay: SplitDecayResult | None = None
     rise_check: RiseCheck | None = None
+    seat_check: SeatCheck | None = None
 
     @property
     def ok(self) -> bool:
@@ -452,6 +468,8 @@ class Design:
             out["monte_carlo"] = self.monte_carlo
         if self.rise_check is not None:
             out["rise_check"] = asdict(self.rise_check)
+        if self.seat_check is not None:
+            out["seat_check"] = asdict(self.seat_check)
         return json_ready(out)
 
 
