@@ -500,6 +500,7 @@ class Board:
     source: str = ""
     ram: int = 0          # bytes of RAM on the part, 0 = not given
     flash: int = 0        # bytes of program flash, 0 = not given
+    core: str = ""        # the processor core (BOARD_CORES), "" = not given
 
 
 @dataclass(frozen=True)
@@ -535,6 +536,9 @@ class Drive:
         data["board"].pop("source", None)
         if data.get("duty") is None:   # added later: a file without [duty] keeps its hash
             data.pop("duty", None)
+        # the board's core picks only the timing figures firmware-driver prints; no design
+        # figure reads it, so it leaves the hash (and every design output) as it was
+        data["board"].pop("core", None)
         _drop_later_defaults(data)
         text = json.dumps(data, sort_keys=True, separators=(",", ":"))
         return hashlib.sha256(text.encode("utf-8")).hexdigest()[:16]
@@ -924,7 +928,7 @@ def load_board(path: str | Path) -> Board:
     source = str(path)
     data = _read_toml(path)
     tables = ("timer", "adc", "sense", "supply_sense", "switch", "freewheel", "link", "tick")
-    _root_sections(source, data, tables, ("name", "description", "ram", "flash"))
+    _root_sections(source, data, tables, ("name", "description", "ram", "flash", "core"))
     root = _Section(source, {k: v for k, v in data.items() if not isinstance(v, dict)}, "")
     name = root.text("name")
     description = root.text("description", "")
@@ -964,9 +968,13 @@ def load_board(path: str | Path) -> Board:
     s = _section(source, data, "tick")
     tick = Tick(s.quantity("rate", "frequency", positive=True))
     s.finish()
+    core = root.choice("core", BOARD_CORES, "") if "core" in root.table else ""
     return Board(name, description, timer, adc, sense, supply_sense, switch, freewheel, link,
-                 tick, source, _memory_size(root, "ram"), _memory_size(root, "flash"))
+                 tick, source, _memory_size(root, "ram"), _memory_size(root, "flash"), core)
 
+
+#: The board file's ``core`` values: the cores whose handler timings firmware-driver knows.
+BOARD_CORES = ("avr", "cortex-m0plus", "cortex-m3", "cortex-m4")
 
 _MEMORY_UNITS = {"": 1, "B": 1, "kB": 1000, "MB": 1000**2, "KiB": 1024, "MiB": 1024**2}
 

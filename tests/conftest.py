@@ -24,7 +24,8 @@ IN_CI = os.environ.get("CI", "").lower() in ("1", "true", "yes")
 #: Debian package of each external tool the tests run (.ci/run installs them).
 PACKAGES = {"ngspice": "ngspice", "arm-none-eabi-gcc": "gcc-arm-none-eabi libnewlib-arm-none-eabi",
             "arm-none-eabi-nm": "binutils-arm-none-eabi", "avr-gcc": "gcc-avr avr-libc",
-            "avr-nm": "binutils-avr", "avr-size": "binutils-avr", "simavr": "simavr"}
+            "avr-nm": "binutils-avr", "avr-size": "binutils-avr", "simavr": "simavr",
+            "arm-none-eabi-objdump": "binutils-arm-none-eabi", "qemu-system-arm": "qemu-system-arm"}
 
 
 def require_tool(name: str) -> str:

@@ -18,7 +18,7 @@ from conftest import ROOT, require_tool
 
 PROGRAM = ROOT / "tests" / "data" / "driver_target.c"
 STRICT = ["-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic", "-Wconversion", "-Wsign-conversion"]
-OPS = {"on": 1, "off": 2, "clear": 3, "run": 4, "supply": 5, "mode": 6, "full": 7, "dip": 8, "level": 9}
+OPS = {"on": 1, "off": 2, "clear": 3, "run": 4, "supply": 5, "mode": 6, "full": 7, "dip": 8, "level": 9, "slew": 10}
 MODES = {"coil": 0, "open": 1, "short": 2}
 _ANSI = re.compile(r"\x1b\[[0-9;]*m")
 
@@ -45,6 +45,17 @@ def as_edited(text: str, text_edit: tuple[str, str]) -> str:
     if 'mode = "current"' in text:
         text = re.sub(r"^(regulation|compensate) = .*\n", "", text, flags=re.M)
     return text
+
+
+def healthy_slew(d) -> int:
+    """Codes per conversion the harness's coil climbs at most: a rise to the shorted-turns
+    check's code that takes enough conversions to pass it at the lowest supply reading
+    the scripts switch on at (COIL_SUPPLY_MIN_CODE)."""
+    rc = d.rise_check
+    if rc is None or rc.limit == 0:
+        return 0xFFFF
+    need = -(-rc.limit // (max(d.adc.supply_min_code, 1) if rc.by_supply else 1)) + 1
+    return max(1, rc.code // need)
 
 
 def conversions_per_tick(d) -> int:
@@ -79,6 +90,7 @@ def write_sources(folder: Path, d, script: list[tuple[str, int]]) -> list[str]:
                       for op, arg in script)
     (folder / "scenario.h").write_text(
         f"#include <stdint.h>\n#define CONVERSIONS_PER_TICK {conversions_per_tick(d)}u\n"
+        f"#define RISE_SLEW {healthy_slew(d)}u\n"
         f"static const uint16_t scenario[][2] = {{\n{rows}\n}};\n")
     return [str(PROGRAM), str(folder / "coil_driver.c")]
 
@@ -117,8 +129,9 @@ def run_avr(folder: Path, d, script: list[tuple[str, int]], flags: tuple[str, ..
 
 def budget_script(d) -> list[tuple[str, int]]:
     """A scenario through every handler path: an actuation at the top of the duty table
-    (its longest search), then over-current, open load, a supply fault in the hold and,
-    with an armature, a seat and a stuck armature, each cleared through the lockout."""
+    (its longest search), then over-current, open load, a supply fault in the hold,
+    shorted turns (where the design has the rise check) and, with an armature, a seat and
+    a stuck armature, each cleared through the lockout."""
     lock = d.release.lockout_ticks + 2
     peak = d.pull_in.peak_ticks
     from coildrive.codegen.driver import open_load_ticks
@@ -129,10 +142,15 @@ def budget_script(d) -> list[tuple[str, int]]:
               ("mode", "open"), ("on", 0), ("run", open_load_ticks(d) + 2), ("clear", 0), ("run", lock),
               ("mode", "coil"), ("on", 0), ("run", peak + 5), ("supply", d.adc.supply_min_code - 1),
               ("run", 6), ("supply", nominal), ("clear", 0), ("run", lock)]
+    if d.rise_check is not None and d.rise_check.limit > 0:     # shorted turns: the rise in one conversion
+        script += [("slew", d.rise_check.code), ("on", 0), ("run", 3), ("clear", 0), ("run", lock),
+                   ("slew", healthy_slew(d))]
     if d.armature is not None:
         from coildrive.codegen.header import HeaderView
         hv = HeaderView(d)
-        early, late = hv.value("SEAT_EARLIEST_TICKS"), hv.value("SEAT_LATEST_TICKS")
+        from coildrive.codegen.driver import seat_grace_ticks
+        early = hv.value("SEAT_EARLIEST_TICKS")
+        late = hv.value("SEAT_LATEST_TICKS") + seat_grace_ticks(d)
         script += [("full", d.adc.pull_in_code + 200), ("on", 0), ("run", 1), ("dip", early + 1),
                    ("run", late + 3), ("off", 0), ("run", lock), ("on", 0), ("run", late + 3),
                    ("clear", 0), ("run", lock)]

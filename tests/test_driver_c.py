@@ -13,7 +13,10 @@ from coildrive.design.regulation import table_lookup
 
 from coildrive.bench.messages import EventKind, FaultCode
 from coildrive.codegen.header import HeaderView
-from coildrive.codegen.driver import OC_BLANK_SAMPLES, SUPPLY_SAMPLES, dip_codes, open_load_ticks
+from coildrive.codegen.driver import OC_BLANK_SAMPLES, SUPPLY_SAMPLES, dip_codes, open_load_ticks, seat_grace_ticks
+from coildrive.config import load_drive
+from coildrive.design import design
+from conftest import BOARDS, EXAMPLES
 from driver_harness import conversions_per_tick, example_design, run_host
 
 pytestmark = pytest.mark.compiler
@@ -150,7 +153,8 @@ def test_fault_clears_through_the_lockout(tmp_path):
 def test_armature_seat_ends_the_peak_and_no_seat_is_stuck(tmp_path):
     d = example_design("locker-latch-12v")
     hv = HeaderView(d)
-    early, late = hv.value("SEAT_EARLIEST_TICKS"), hv.value("SEAT_LATEST_TICKS")
+    # the stuck check waits SEAT_GRACE_TICKS past the latest seat (the climb that shows it)
+    early, late = hv.value("SEAT_EARLIEST_TICKS"), hv.value("SEAT_LATEST_TICKS") + seat_grace_ticks(d)
     assert dip_codes(d) >= 2
     common = [("supply", nominal_supply_code(d)), ("full", d.adc.pull_in_code + 200)]
     seat_at = early + 3
@@ -210,3 +214,71 @@ def test_supply_compensated_peak_takes_its_length_from_the_header(tmp_path):
                                      ("run", d.pull_in.peak_ticks + 5)])
         assert run.events()[:2] == [(1, ON, 0), (1 + peak, PEAK_END, 0)], f"supply code {supply}"
     assert _peak_at(d, d.adc.supply_max_code) < _peak_at(d, d.adc.supply_min_code)
+
+
+def test_shorted_turns_trip_below_the_rise_limit(tmp_path):
+    """The rise check (docs/firmware.md): the first conversion at or above RISE_CODE after
+    n conversions from the switch-on, at supply code s, is SHORTED_TURNS when n x s is
+    below RISE_LIMIT, the switch off in that conversion; one conversion later passes. The
+    model's current climbs SLEW codes a conversion, so it first reads the code at
+    conversion ceil(code / slew)."""
+    d = example_design("demo-valve")
+    rc = d.rise_check
+    assert rc.limit > 0 and rc.by_supply
+    s = nominal_supply_code(d)
+    n_ok = -(-rc.limit // s)                  # the fewest conversions that pass at s
+    per_tick = conversions_per_tick(d)
+    for n, trips in ((n_ok - 1, True), (n_ok, False)):
+        slew = next(k for k in range(1, rc.code + 1) if -(-rc.code // k) == n)
+        folder = tmp_path / str(n)
+        folder.mkdir()
+        run = run_host(folder, d, [("supply", s), ("full", 2 * d.adc.pull_in_code), ("slew", slew), ("on", 0),
+                                   ("run", n // per_tick + 3)])
+        faults = [(t, c, v) for t, c, k, v in run.calls("e") if k == FAULT]
+        # the switch goes on at tick 1, conversion 0 (n = 0); conversion n sees the code
+        seen = divmod(per_tick + n, per_tick)
+        if trips:
+            assert faults == [(*seen, int(FaultCode.SHORTED_TURNS))], (n, s, rc.limit)
+            assert switch_offs(run, 1)[0] == seen, "off in the conversion that sees it"
+            assert run.states()[-1] == (FAULT_STATE, int(FaultCode.SHORTED_TURNS))
+        else:
+            assert faults == [], (n, s, rc.limit)
+            assert run.states()[-1] == (PEAK, 0)
+
+
+def test_rise_check_off_where_the_design_says_so(tmp_path):
+    """The relay's 8-bit sense gives a rise code under 8 codes: RISE_LIMIT is 0 and the
+    fastest rise passes (the harness climbs at the ADC's full scale in one conversion;
+    the over-current code is above it and the design's pull-in code is reached)."""
+    d = example_design("relay-12v")
+    assert d.rise_check.limit == 0 and "codes of zero" in d.rise_check.why_off
+    run = run_host(tmp_path, d, [("supply", nominal_supply_code(d)), ("full", d.adc.pull_in_code), ("slew", 0xFFFF),
+                                 ("on", 0), ("run", 4)])
+    assert not [e for e in run.events() if e[1] == FAULT]
+
+
+def test_rise_check_without_supply_sense_counts_conversions_alone(tmp_path):
+    """A board that does not read its supply (no [supply_sense]): the limit is in
+    conversions alone (RISE_BY_SUPPLY 0, designed at the highest supply), so n below
+    RISE_LIMIT trips and n = RISE_LIMIT passes (the demo valve on its board with the
+    supply divider taken out, a fixed hold and peak)."""
+    import re
+    board = tmp_path / "nosense.toml"
+    board.write_text(re.sub(r"\n\[supply_sense\][^\[]*", "\n", (BOARDS / "lab-m32-zener.toml").read_text()))
+    text = (EXAMPLES / "demo-valve.toml").read_text().replace('board = "lab-m32-zener"', f'board = "{board}"')
+    text = text.replace('regulation = "supply_table"', 'regulation = "fixed"').replace("compensate = true", "compensate = false")
+    drive = tmp_path / "demo.toml"
+    drive.write_text(text)
+    d = design(load_drive(drive))
+    rc = d.rise_check
+    assert not rc.by_supply and rc.limit > 0
+    per_tick = conversions_per_tick(d)
+    for n, trips in ((rc.limit - 1, True), (rc.limit, False)):
+        slew = next(k for k in range(1, rc.code + 1) if -(-rc.code // k) == n)
+        folder = tmp_path / str(n)
+        folder.mkdir()
+        run = run_host(folder, d, [("supply", 0), ("full", 2 * d.adc.pull_in_code), ("slew", slew), ("on", 0),
+                                   ("run", n // per_tick + 3)])
+        faults = [(t, c, v) for t, c, k, v in run.calls("e") if k == FAULT]
+        expected = [(*divmod(per_tick + n, per_tick), int(FaultCode.SHORTED_TURNS))] if trips else []
+        assert faults == expected, (n, rc.limit)

@@ -50,13 +50,16 @@ class FaultCode(IntEnum):
     OPEN_LOAD = 1
     """No current rise: the current stayed below the open-load threshold too long."""
     OVER_CURRENT = 2
-    """The current reached the over-current threshold (a short, or shorted turns)."""
+    """The current reached the over-current threshold (a short)."""
     STUCK = 3
     """No armature seat (current dip) inside the designed window."""
     SUPPLY_LOW = 4
     """The supply reading stayed below the design's lowest supply."""
     SUPPLY_HIGH = 5
     """The supply reading stayed above the design's highest supply."""
+    SHORTED_TURNS = 6
+    """The current rose faster after switch-on than any healthy coil of the design's
+    envelope allows at that supply (shorted turns: too little inductance)."""
 
 
 class Opcode(IntEnum):

@@ -7,7 +7,8 @@ types) and the few diagnostic figures the driver needs that the Design does not 
 each comes from Design fields by a rule written beside it (and in docs/firmware.md).
 
 :func:`budget_notes` says what the driver's handlers take of their periods at the
-board's clock, from cycle counts measured on a simulated 8-bit target.
+board's clock: cycle counts measured on a simulated 8-bit target (simavr), or for a board
+whose ``core`` is a Cortex-M, cycle bounds from the instructions QEMU executed.
 """
 
 from __future__ import annotations
@@ -55,20 +56,24 @@ def open_load_ticks(design: Design) -> int:
 
 
 def dip_codes(design: Design) -> int:
-    """The fall and the climb in ADC codes that mark the armature's seat in the current dip.
+    """The fall and the climb in ADC codes that mark the armature's seat in the current dip:
+    the design's (:func:`coildrive.design.diagnostics.dip_codes`, a quarter of the
+    shallowest dip over the corners, at least four codes)."""
+    if design.seat_check is not None:
+        return design.seat_check.dip_codes
+    from ..design.diagnostics import dip_codes as rule
+    return rule(design.drive, [c.armature.get("dip_depth_a", math.nan) for c in design.corners if c.armature])
 
-    Rule: a quarter of the shallowest dip over the design's corners (each corner's
-    ``dip_depth_a``: the hump before the dip less its bottom), at least four codes. A
-    quarter: the fall is seen early in the dip, and the climb after the bottom within a
-    fraction of a millisecond on the example latch; four codes stay clear of an ADC's
-    noise of a code or two (common practice).
-    """
-    depths = [c.armature.get("dip_depth_a") for c in design.corners if c.armature]
-    depths = [x for x in depths if x is not None and math.isfinite(x) and x > 0]
-    if not depths:
-        return 4
-    board = design.drive.board
-    return max(4, math.floor(0.25 * min(depths) * design.adc.volts_per_amp / board.adc.reference * 2**board.adc.bits))
+
+def seat_grace_ticks(design: Design) -> int:
+    """Ticks past SEAT_LATEST_TICKS that a seat is still taken and the stuck check waits.
+
+    Rule: the seat is seen when the current has climbed DIP_CODES above the bottom of the
+    dip; the design's longest climb after the seat (``seat_check.climb_s``) in ticks,
+    rounded up, + 1 for the tick's phase (as the open-load ticks)."""
+    sc = design.seat_check
+    climb = sc.climb_s if sc is not None and math.isfinite(sc.climb_s) else 0.0
+    return math.ceil(climb * design.drive.board.tick.rate - 1e-9) + 1
 
 
 class DriverView:
@@ -134,9 +139,28 @@ class DriverView:
             Constant(f"{m}_DRIVER_THRESHOLD_WINDOW_WATCHDOG", int(cm is not None and not self.off_time),
                      "current-mode hold takes its thresholds from an ADC window watchdog (hysteretic)"),
         ]
+        rc = d.rise_check
+        on = rc is not None and rc.limit > 0
+        self.constants += [
+            Constant(f"{m}_DRIVER_RISE_CODE", rc.code if on else 0,
+                     f"shorted turns: the rise is timed to this code ({rc.current_a:.4g} A)" if on
+                     else "shorted turns: no rise check (" + (rc.why_off if rc is not None else
+                                                               "the design gives none") + ")"),
+            Constant(f"{m}_DRIVER_RISE_LIMIT", rc.limit if on else 0,
+                     "fault when conversions to RISE_CODE x supply code is below (0: off)"
+                     if on and rc.by_supply else "fault when conversions to RISE_CODE is below (0: off)"),
+            Constant(f"{m}_DRIVER_RISE_BY_SUPPLY", int(on and rc.by_supply),
+                     "1: the rise limit scales with the supply reading"),
+        ]
         if self.armature:
             self.constants.append(Constant(f"{m}_DRIVER_DIP_CODES", dip_codes(d),
                                            "seat: fall and climb of the current dip, codes"))
+            sc = d.seat_check
+            self.constants.append(Constant(
+                f"{m}_DRIVER_SEAT_GRACE_TICKS", seat_grace_ticks(d),
+                "seat: taken, and STUCK waited for, this long past SEAT_LATEST_TICKS (the climb "
+                + (f"{sc.climb_s * 1e3:.3g} ms" if sc is not None and math.isfinite(sc.climb_s) else "not designed")
+                + ", +1 tick)"))
         longest = max(d.pull_in.peak_ticks, d.release.lockout_ticks, open_load_ticks(d), 255)
         self.tick_type = c_uint_type(max(longest, 0x100))
         self.event_kinds = [(k.name, int(k)) for k in DRIVER_EVENTS]
@@ -179,17 +203,49 @@ def render_driver(design: Design, prefix: str = "coil") -> dict[str, str]:
 #: figure exceeds its bound or falls 10 % below it. ``adc_isr_closed_loop`` is the ADC
 #: handler of a closed-loop hold (the PI step's 32-bit multiplies through the libgcc
 #: routines of an 8-bit core), over the closed-loop example's script.
-HANDLER_CYCLES = {"adc_isr": 320, "pwm_isr": 11, "tick": 692, "threshold_isr": 137,
+HANDLER_CYCLES = {"adc_isr": 340, "pwm_isr": 11, "tick": 692, "threshold_isr": 137,
                   "adc_isr_closed_loop": 602}
+#: Worst-case cycle bounds of each handler on Cortex-M cores, over the same drive shapes
+#: and script (tests/test_driver_qemu.py): arm-none-eabi-gcc 12.2 -Os builds run under
+#: QEMU 7.2 (mps2-an385: Cortex-M3, and the ARMv6-M code of the M0+; mps2-an386:
+#: Cortex-M4) with an execution trace, every instruction executed charged its worst
+#: cycles in the core's instruction timing table (Arm's Technical Reference Manuals, from
+#: memory), zero flash wait states; ``threshold_isr`` is the worse of the threshold and the
+#: off-timer handlers. QEMU counts instructions, not cycles: CORTEX_INSTRUCTIONS are the
+#: instructions executed on those worst paths. The test measures again and fails if a
+#: figure exceeds its bound or all fall 10 % below it.
+CORTEX_CYCLES = {
+    "cortex-m0plus": {"adc_isr": 324, "pwm_isr": 13, "tick": 525, "threshold_isr": 121,
+                      "adc_isr_closed_loop": 310},
+    "cortex-m3": {"adc_isr": 305, "pwm_isr": 8, "tick": 509, "threshold_isr": 102,
+                  "adc_isr_closed_loop": 308},
+    "cortex-m4": {"adc_isr": 305, "pwm_isr": 8, "tick": 509, "threshold_isr": 102,
+                  "adc_isr_closed_loop": 308},
+}
+CORTEX_INSTRUCTIONS = {
+    "cortex-m0plus": {"adc_isr": 176, "pwm_isr": 4, "tick": 373, "threshold_isr": 63,
+                      "adc_isr_closed_loop": 165},
+    "cortex-m3": {"adc_isr": 147, "pwm_isr": 2, "tick": 305, "threshold_isr": 53,
+                  "adc_isr_closed_loop": 148},
+    "cortex-m4": {"adc_isr": 147, "pwm_isr": 2, "tick": 305, "threshold_isr": 53,
+                  "adc_isr_closed_loop": 148},
+}
+#: How each core's figures were had, for the printed timing line.
+_CYCLE_SOURCES = {
+    "": "worst cycles measured on an 8-bit AVR, an upper bound for a 32-bit core",
+    "avr": "worst cycles measured on an 8-bit AVR (simavr)",
+    **{core: f"worst-case cycles of a {core.replace('plus', '+').replace('cortex-m', 'Cortex-M')} from the "
+             "instructions QEMU executed, zero flash wait states" for core in CORTEX_CYCLES},
+}
 #: The driver's static state (bytes): the largest .bss over those shapes, from
 #: avr-gcc 5.4 (ATmega328P) and arm-none-eabi-gcc 12.2 (Cortex-M0+ and M4 alike).
-_STATE_BYTES = {"avr": 40, "arm": 45}
+_STATE_BYTES = {"avr": 42, "arm": 47}
 #: Code bytes at -Os: the largest .text over those shapes, rounded up to 50 bytes
 #: (Cortex-M0+, larger than the M4 build).
-_CODE_BYTES = {"avr": 1550, "arm": 1200}
+_CODE_BYTES = {"avr": 1650, "arm": 1300}
 #: The same for a closed-loop hold's driver (the PI step in place of the table lookup;
 #: its own bound so that the other holds' figures stay as measured).
-_CLOSED_LOOP_CODE_BYTES = {"avr": 1600, "arm": 1050}
+_CLOSED_LOOP_CODE_BYTES = {"avr": 1650, "arm": 1150}
 WARN_SHARE = 0.5
 
 
@@ -215,18 +271,27 @@ class HandlerShare:
         return self.cycles / self.period_cycles
 
 
+def handler_cycles(core: str) -> dict[str, int]:
+    """Worst cycles of each handler on a board's ``core``: the Cortex-M bounds where the
+    board names a Cortex-M core, else the AVR measurement (an upper bound for a 32-bit
+    core when the board names none)."""
+    return CORTEX_CYCLES.get(core, HANDLER_CYCLES)
+
+
 def handler_shares(design: Design) -> list[HandlerShare]:
     """The PWM/ADC handlers (both run once a PWM period) against the PWM period, and the
     tick against the tick period, at the board's timer clock taken as the CPU clock; in
     current mode also the threshold (or off-timer) handler, which runs at each switching
-    edge, against half a switching cycle at the design's highest switching frequency."""
+    edge, against half a switching cycle at the design's highest switching frequency.
+    Cycles per the board's ``core`` (:func:`handler_cycles`)."""
     clock = design.drive.board.timer.clock
-    pwm = HANDLER_CYCLES[budget_key(design, "adc_isr")] + HANDLER_CYCLES["pwm_isr"]
+    cycles = handler_cycles(design.drive.board.core)
+    pwm = cycles[budget_key(design, "adc_isr")] + cycles["pwm_isr"]
     shares = [HandlerShare("pwm_isr + adc_isr", pwm, clock / design.timer.frequency_hz, "PWM period"),
-              HandlerShare("tick", HANDLER_CYCLES["tick"], clock / design.drive.board.tick.rate, "tick")]
+              HandlerShare("tick", cycles["tick"], clock / design.drive.board.tick.rate, "tick")]
     cm = design.hold.current_mode
     if cm is not None and cm.max_frequency_hz > 0:
-        shares.append(HandlerShare("threshold_isr", HANDLER_CYCLES["threshold_isr"],
+        shares.append(HandlerShare("threshold_isr", cycles["threshold_isr"],
                                    clock / (2.0 * cm.max_frequency_hz), "switching edge"))
     return shares
 
@@ -283,7 +348,7 @@ def budget_notes(design: Design, prefix: str = "coil") -> list[str]:
     mhz = board.timer.clock / 1e6
     notes.append("timing at " + f"{mhz:.4g} MHz: " + "; ".join(
         f"{h.name} {h.cycles:,} of {h.period_cycles:,.0f} cycles a {h.period} ({100 * h.share:.1f} %)"
-        for h in shares) + " (worst cycles measured on an 8-bit AVR, an upper bound for a 32-bit core)")
+        for h in shares) + f" ({_CYCLE_SOURCES[board.core]})")
     for h in shares:
         text = (f"{h.name} takes {100 * h.share:.1f} % of the {h.period} ({h.cycles:,} of "
                 f"{h.period_cycles:,.0f} cycles at {mhz:.4g} MHz)")

@@ -46,6 +46,7 @@ from .figures import (adc_thresholds, corners_of, hold_spread, loss_figures, pul
                       release_result, worst)
 from .hold_voltage import _losses, _split_result, closing_checks, plot_points
 from .peak import plan_peak, shortest_peak_current
+from .diagnostics import rise_check, seat_check
 from .thermal_cycle import refuse_cycle
 from .topology import topology_cautions, topology_result
 from .result import Check, ClosedLoopResult, Design, DutyTable, HoldResult, TimerResult
@@ -195,7 +196,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                   adc=thresholds, duty_table=DutyTable([], [], []), corners=corners, nominal=nominal,
                   checks=checks, cautions=notes, monte_carlo=None, input_hash=drive.input_hash(),
                   worst_corner_index=pk.k_pull, armature=arm, split_decay=split,
-                  actuation_points=points, peak_table=None, topology=topo)
+                  actuation_points=points, peak_table=None, topology=topo,
+                  rise_check=rise_check(drive, env, res, f), seat_check=seat_check(drive, env, res_low))
 
 
 def _loop(drive, env, lp, res_low, duty, f, period, setpoint, lsb, min_compare, max_compare,

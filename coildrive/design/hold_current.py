@@ -54,6 +54,7 @@ from .corners import CornerGrid, corner_grid, nominal_point
 from .evaluate import PointResults, release_figures, switch_voltage_peak
 from .figures import (adc_thresholds, corners_of, hold_spread, loss_figures, pull_in_result,
                       release_result, saving_figures, slow_hold_drive)
+from .diagnostics import rise_check, seat_check
 from .peak import plan_peak, shortest_peak_current
 from .turnoff import turn_offs
 from .result import Check, CurrentModeResult, Design, HoldResult, Thresholds
@@ -364,7 +365,9 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     return dataclasses.replace(
         fallback, drive=drive, pull_in=pull_in, hold=hold, release=release, adc=thresholds,
         split_decay=split, corners=corners, nominal=nominal, checks=checks, cautions=notes,
-        actuation_points=points, topology=topo, input_hash=drive.input_hash(), worst_corner_index=k_pull)
+        actuation_points=points, topology=topo, input_hash=drive.input_hash(), worst_corner_index=k_pull,
+        rise_check=rise_check(drive, grid, res, fallback.timer.frequency_hz),
+        seat_check=seat_check(drive, grid, res))
 
 
 def _mode_result(drive: Drive, th: Thresholds, grid: CornerGrid, cm: CurrentModeSteadyState,

@@ -29,6 +29,7 @@ from ..errors import InputError
 from ..model.circuit import split_decay
 from ..model.losses import HoldLosses, hold_losses
 from ..model.pwm import pwm_steady_state
+from .diagnostics import rise_check, seat_check
 from .checks import base_checks, cautions, energy_checks, loss_cautions, loss_checks
 from .corners import nominal_point
 from .envelope import supply_codes
@@ -167,7 +168,9 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                  checks=checks, cautions=notes, monte_carlo=None,
                  input_hash=drive.input_hash(), worst_corner_index=pk.k_pull, armature=arm,
                  split_decay=split, actuation_points=points, peak_table=pk.table,
-                 thermal_cycle=thermal, topology=topo)
+                 thermal_cycle=thermal, topology=topo,
+                 rise_check=rise_check(drive, env, res, f_hold),
+                 seat_check=seat_check(drive, env, res_low))
     if samples > 0:
         from .montecarlo import monte_carlo
 

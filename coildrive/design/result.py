@@ -454,6 +454,55 @@ class AdcThresholds:
 
 
 @dataclass(frozen=True)
+class RiseCheck:
+    """The fast-rise diagnostic (shorted turns): the current passing ``code`` sooner after
+    switch-on than any healthy coil of the envelope can make it pass.
+
+    The driver counts conversions (one a PWM period, ``conversion_hz``) from the
+    switch-on to the first one at or above ``code`` (``current_a`` as the channel reads
+    it); ``n`` of them at a supply-sense reading ``s`` is a fault when
+    ``n x s < limit`` (``n < limit`` on a board that does not sense its supply,
+    ``by_supply`` False): the rise time scales with 1/V. ``fastest_s`` is the healthy
+    rise to the code (the reading
+    high by the channel's tolerance and ``noise_codes``) at the corner that sets the
+    limit, ``fastest_corner``; ``fastest_product`` its conversions x lowest supply reading; ``limit`` is ``margin`` of that.
+    ``trip_inductance_factor``: with an inductance below this fraction of the rise's
+    nominal (``inductance_h``), the check trips at every supply and temperature of the
+    envelope (a conversion late, the reading low, the supply read high). ``limit`` 0:
+    the check is off (``why_off`` says why). See docs/firmware.md.
+    """
+
+    code: int
+    current_a: float
+    conversion_hz: float
+    by_supply: bool
+    limit: int
+    margin: float
+    noise_codes: int
+    fastest_s: float
+    fastest_product: float
+    fastest_corner: str
+    inductance_h: float
+    trip_inductance_factor: float
+    why_off: str = ""
+
+
+@dataclass(frozen=True)
+class SeatCheck:
+    """The driver's seat detector (``[armature]`` drives): the dip's fall and climb in ADC
+    codes (``dip_codes``), the true current the climb may need (``climb_a``), and the
+    longest time it takes after the seat over the corners (``climb_s``, at
+    ``climb_corner``): the stuck check waits that long past the latest seat.
+    ``unseen_corners``: seated corners where the current cannot climb that far."""
+
+    dip_codes: int
+    climb_a: float
+    climb_s: float
+    climb_corner: str
+    unseen_corners: int
+
+
+@dataclass(frozen=True)
 class DutyTable:
     """Supply-compensated hold: compare value for each supply-sense ADC code (ascending).
 
@@ -537,6 +586,8 @@ class Design:
     split_decay: SplitDecayResult | None = None
     thermal_cycle: ThermalCycleResult | None = None
     topology: TopologyResult | None = None
+    rise_check: RiseCheck | None = None
+    seat_check: SeatCheck | None = None
 
     @property
     def ok(self) -> bool:
@@ -587,6 +638,10 @@ class Design:
             out["thermal_cycle"] = asdict(self.thermal_cycle)
         if self.monte_carlo is not None:
             out["monte_carlo"] = self.monte_carlo
+        if self.rise_check is not None:
+            out["rise_check"] = asdict(self.rise_check)
+        if self.seat_check is not None:
+            out["seat_check"] = asdict(self.seat_check)
         return json_ready(out)
 
 

@@ -21,7 +21,7 @@ import math
 import numpy as np
 
 from ..config import Drive
-from ..model.circuit import loop
+from ..model.circuit import full_bridge, loop
 from ..model.pwm import pwm_steady_state
 from ..model.rl import decay_integrals, decay_time, rise_integrals
 from ..model.thermal_cycle import chord, cycle_steady_state, heating, time_to_rise
@@ -67,7 +67,8 @@ def on_energies(drive: Drive, supply, r_factor, l_factor, duty, frequency, facto
     ``min(peak_time, on_time)`` s (through :func:`peak_inductance`; ``peak_time`` may be
     an array over the points), the hold's periodic steady state for the rest of the
     on-time, the release from the top of the hold ripple to zero through the hold's
-    freewheel path (with split decay the slow one: the longer decay, the more heat)."""
+    freewheel path (with split decay the slow one: the longer decay, the more heat; a full
+    bridge's release path, as its hold path never reaches zero)."""
     t_on = drive.duty.on_time
     t_pk = np.minimum(peak_time, t_on)
     t_hold = t_on - t_pk
@@ -76,8 +77,12 @@ def on_energies(drive: Drive, supply, r_factor, l_factor, duty, frequency, facto
         lp = loop(drive, supply, temp, r_factor, l_factor, **factors)
         ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
         _, s_pk = rise_integrals(t_pk, 0.0, lp.v_on, lp.r_on, peak_inductance(drive, lp))
-        t0 = decay_time(0.0, ss.i_max, lp.r_off, lp.v_off, lp.inductance)
-        _, s_rel = decay_integrals(t0, ss.i_max, lp.r_off, lp.v_off, lp.inductance)
+        # a full bridge's hold path (slow decay, no opposing voltage) never brings the
+        # current to zero: its release is the fast decay into the bus
+        rel = loop(drive, supply, temp, r_factor, l_factor, path="release", **factors) \
+            if full_bridge(drive) else lp
+        t0 = decay_time(0.0, ss.i_max, rel.r_off, rel.v_off, rel.inductance)
+        _, s_rel = decay_integrals(t0, ss.i_max, rel.r_off, rel.v_off, rel.inductance)
         return lp.r_coil * s_pk, ss.rms**2 * lp.r_coil * t_hold, lp.r_coil * s_rel
     return at
 

@@ -11,7 +11,9 @@
  * The scenario (scenario.h, written by the test) is a list of {op, argument} pairs. Each
  * tick runs CONVERSIONS_PER_TICK conversions (pwm_isr, then adc_isr) and then coil_tick().
  * A small integer coil model gives the current: it climbs toward FULL x compare / period
- * while the switch is on and decays by a quarter per conversion while it is off. The
+ * by a quarter of the way per conversion, at most SLEW codes (RISE_SLEW, a rise the
+ * driver's shorted-turns check passes, until a "slew" step changes it), while the switch
+ * is on and decays by a quarter per conversion while it is off. The
  * hooks only log into RAM, so the timed calls hold no UART waits and no model arithmetic.
  * OP_LEVEL holds the current at a given code whatever the switch does (a closed-loop
  * hold's test feeds its samples so).
@@ -29,6 +31,7 @@
 #define OP_FULL 7u
 #define OP_DIP 8u
 #define OP_LEVEL 9u
+#define OP_SLEW 10u
 #define MODE_COIL 0u
 #define MODE_OPEN 1u
 #define MODE_SHORT 2u
@@ -63,6 +66,29 @@ static void stop(void)
     cli();
     sleep_cpu();
 }
+#elif defined(__arm__)
+/* Bare metal on a QEMU Cortex-M machine (mps2-an385 / an386): the vector table and the
+ * reset handler are in tests/data/cortex_start.c; the text goes out through Arm
+ * semihosting (SYS_WRITEC, SYS_EXIT). The handlers are timed from QEMU's execution
+ * trace (tests/cortex_trace.py), not from inside: NOW() reads nothing. */
+static void semihost(uint32_t op, const void *arg)
+{
+    register uint32_t r0 __asm__("r0") = op;
+    register const void *r1 __asm__("r1") = arg;
+    __asm__ volatile("bkpt 0xab" : "+r"(r0) : "r"(r1) : "memory");
+}
+static void uart_put(char c)
+{
+    semihost(0x03u, &c);
+}
+static void start_clock(void)
+{
+}
+#define NOW() 0u
+static void stop(void)
+{
+    semihost(0x18u, (const void *)0x20026UL);   /* ADP_Stopped_ApplicationExit */
+}
 #else
 #include <stdio.h>
 static void uart_put(char c)
@@ -84,7 +110,7 @@ static uint8_t log_len;
 static uint16_t now_tick, now_conv;
 static uint8_t sw, bypass;
 static uint32_t compare;
-static uint16_t current, supply, full, dip_at, level;
+static uint16_t current, supply, full, dip_at, level, slew = RISE_SLEW;
 static uint8_t mode;
 
 static void log_add(uint8_t kind, int32_t value)
@@ -177,7 +203,8 @@ static void model(void)
     } else if (sw) {
         uint16_t target = (uint16_t)((uint32_t)full * compare / COIL_TIMER_PERIOD_COUNTS);
         if (target >= current) {
-            current = (uint16_t)(current + (target - current + 3u) / 4u);
+            uint16_t step = (uint16_t)((target - current + 3u) / 4u);
+            current = (uint16_t)(current + (step > slew ? slew : step));
         } else {
             current = (uint16_t)(current - (current - target) / 4u);
         }
@@ -230,6 +257,8 @@ int main(void)
             mode = MODE_LEVEL;
             level = arg;
             current = arg;
+        } else if (op == OP_SLEW) {
+            slew = arg;
         } else if (op == OP_DIP) {
             dip_at = (uint16_t)(now_tick + arg);
         } else {
