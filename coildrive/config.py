@@ -55,6 +55,9 @@ _ENERGY_RATINGS = ("diode_energy_rating", "zener_energy_rating", "resistor_energ
                    "clamp_energy_rating")
 #: Freewheel keys of split decay (only with ``split_decay = true``).
 _BYPASS_KEYS = ("bypass_resistance", "bypass_lead", "bypass_power_rating")
+#: Datasheet keys of ``[coil]`` (docs/coil-model.md).
+_DATASHEET_KEYS = ("rated_voltage", "rated_power", "pick_up_voltage", "drop_out_voltage",
+                   "operate_time", "release_time")
 _FREEWHEEL_LATER = ("split_decay", "bypass_resistance", "bypass_lead", "diode_power_rating",
                     "zener_power_rating", "resistor_power_rating", "clamp_power_rating",
                     "bypass_power_rating", "power_derating", *_FREEWHEEL_TOLERANCES,
@@ -73,6 +76,13 @@ BOUNDS: dict[str, tuple[float, float, str]] = {
     "coil.resistance": (1e-3, 100e3, "resistance"),
     "coil.reference_temp": (-75.0, 250.0, "temperature"),
     "coil.inductance": (1e-6, 100.0, "inductance"),
+    "coil.rated_voltage": (0.1, 10e3, "voltage"),
+    "coil.rated_power": (1e-4, 100e3, "power"),
+    "coil.pick_up_voltage": (0.01, 10e3, "voltage"),
+    "coil.drop_out_voltage": (0.001, 10e3, "voltage"),
+    "coil.stated_temp": (-75.0, 250.0, "temperature"),
+    "coil.operate_time": (1e-6, 10.0, "time"),
+    "coil.release_time": (1e-6, 10.0, "time"),
     "supply.min": (0.5, 1000.0, "voltage"),
     "supply.nominal": (0.5, 1000.0, "voltage"),
     "supply.max": (0.5, 1000.0, "voltage"),
@@ -176,6 +186,12 @@ class Coil:
 
     Tolerances are fractions (0.1 = +/-10 %); ``tolerance_distribution`` is used by the
     Monte Carlo (``normal`` reads the tolerance as 3 sigma).
+
+    Datasheet inputs (0 = not given; see docs/coil-model.md): ``rated_voltage`` (V) and
+    ``rated_power`` (W) at ``reference_temp`` give ``resistance = V^2 / P``;
+    ``pick_up_voltage`` and ``drop_out_voltage`` (V) at the coil temperature
+    ``stated_temp`` (degC) give the pull-in and drop-out currents; ``operate_time`` and
+    ``release_time`` (s) are the datasheet's response times, for the design's checks.
     """
 
     resistance: float
@@ -184,6 +200,20 @@ class Coil:
     resistance_tolerance: float
     inductance_tolerance: float
     tolerance_distribution: str = "uniform"
+    rated_voltage: float = 0.0
+    rated_power: float = 0.0
+    pick_up_voltage: float = 0.0
+    drop_out_voltage: float = 0.0
+    stated_temp: float | None = None
+    operate_time: float = 0.0
+    release_time: float = 0.0
+
+    @property
+    def derived(self) -> tuple[str, ...]:
+        """The file keys whose values came from the datasheet keys."""
+        return tuple(key for key, given in (("coil.resistance", self.rated_voltage),
+                                            ("pull_in.current", self.pick_up_voltage),
+                                            ("release.current", self.drop_out_voltage)) if given)
 
 
 @dataclass(frozen=True)
@@ -485,6 +515,7 @@ class Drive:
 #: Keys added after the first release: left out of the input hash while they hold their
 #: default, so that files which do not use them keep their hash (and headers their bytes).
 _LATER_FIELDS = (
+    (("coil",), Coil, _DATASHEET_KEYS + ("stated_temp",)),
     (("hold",), Hold, _CURRENT_MODE_KEYS + ("regulation",)),
     (("pull_in",), PullIn, ("current_margin", "settle_time", "compensate")),
     (("board", "sense"), Sense, ("resistance_tolerance", "gain_tolerance")),
@@ -754,6 +785,97 @@ def _read_armature(s: _Section) -> Armature:
     return arm
 
 
+#: Which datasheet voltage of ``[coil]`` gives the current of each section.
+_SHEET_CURRENTS = {"pull_in": "pick_up_voltage", "release": "drop_out_voltage"}
+
+
+def _both(s: _Section, key: str, other: str, what: str) -> InputError:
+    """Two forms of the same quantity: one line naming both keys."""
+    src, full = s.where(key)
+    return InputError(src, f"{full} and coil.{other}", f"both give {what}; keep one of them")
+
+
+def _read_coil(s: _Section, armature: Armature | None) -> tuple[Coil, dict[str, float]]:
+    """``[coil]``, and the currents its datasheet voltages give (by section name).
+
+    Resistance: ``resistance``, or ``rated_voltage^2 / rated_power`` (both at
+    ``reference_temp``). The pick-up (must-operate) voltage holds for every part of the
+    tolerance band, so the pull-in current is taken at the lowest resistance,
+    ``V_pick_up / (R(T_stated) (1 - tol))``: the most any part can need. The drop-out
+    (must-release) voltage gives the drop-out current at the highest,
+    ``V_drop_out / (R(T_stated) (1 + tol))``: the least, which makes the release the
+    longest. ``R(T)`` is copper's (IEC 60028, :mod:`coildrive.copper`).
+    """
+    from .copper import copper_resistance
+
+    rated = [k for k in ("rated_voltage", "rated_power") if k in s.table]
+    if rated and "resistance" in s.table:
+        raise _both(s, "resistance", rated[0], "the coil's resistance (rated_voltage^2 / "
+                    "rated_power at reference_temp)")
+    if rated:
+        for key, other in (("rated_voltage", "rated_power"), ("rated_power", "rated_voltage")):
+            if key in s.table and other not in s.table:
+                raise s.fail(key, f"needs coil.{other} too: the resistance is rated_voltage^2 / "
+                             "rated_power (or give coil.resistance instead)")
+        rated_v = s.quantity("rated_voltage", "voltage", positive=True)
+        rated_p = s.quantity("rated_power", "power", positive=True)
+        resistance = rated_v * rated_v / rated_p
+        if not _in_bounds(resistance, "coil.resistance"):
+            raise s.fail("rated_power", f"gives a resistance of {resistance:g} ohm (rated_voltage^2 / "
+                         f"rated_power), outside {bounds_text('coil.resistance')}")
+    else:
+        resistance = s.quantity("resistance", "resistance", positive=True)
+        rated_v = rated_p = 0.0
+    reference_temp = s.quantity("reference_temp", "temperature", 20.0)
+    tol_r = s.fraction("resistance_tolerance", 0.0)
+
+    def optional(key: str, dimension: str) -> float:
+        return s.quantity(key, dimension, positive=True) if key in s.table else 0.0
+
+    pick_up = optional("pick_up_voltage", "voltage")
+    drop_out = optional("drop_out_voltage", "voltage")
+    stated = None
+    if pick_up or drop_out:
+        stated = s.quantity("stated_temp", "temperature", reference_temp)
+    elif "stated_temp" in s.table:
+        raise s.fail("stated_temp", "is the coil temperature of pick_up_voltage and "
+                     "drop_out_voltage; give one of them, or leave stated_temp out")
+    if pick_up and rated_v and pick_up > rated_v:
+        raise s.fail("pick_up_voltage", f"{pick_up:g} V is above rated_voltage ({rated_v:g} V), "
+                     "expected the pick-up (must-operate) voltage below the rating")
+    if drop_out and pick_up and drop_out >= pick_up:
+        raise s.fail("drop_out_voltage", f"{drop_out:g} V is not below pick_up_voltage "
+                     f"({pick_up:g} V), expected drop-out < pick-up")
+    sheet: dict[str, float] = {}
+    if stated is not None:
+        r_stated = float(copper_resistance(resistance, reference_temp, stated))
+        for section, voltage, r_end in (("pull_in", pick_up, r_stated * (1.0 - tol_r)),
+                                        ("release", drop_out, r_stated * (1.0 + tol_r))):
+            if not voltage:
+                continue
+            value = voltage / r_end
+            key = _SHEET_CURRENTS[section]
+            if not _in_bounds(value, f"{section}.current"):
+                raise s.fail(key, f"gives a {section.replace('_', '-')} current of {value:g} A, "
+                             f"outside {bounds_text(section + '.current')}")
+            sheet[section] = value
+    coil = Coil(
+        resistance=resistance,
+        reference_temp=reference_temp,
+        inductance=s.quantity("inductance", "inductance",
+                              _MISSING if armature is None else armature.inductance_closed,
+                              positive=True),
+        resistance_tolerance=tol_r,
+        inductance_tolerance=s.fraction("inductance_tolerance", 0.0),
+        tolerance_distribution=s.choice("tolerance_distribution", DISTRIBUTIONS, "uniform"),
+        rated_voltage=rated_v, rated_power=rated_p, pick_up_voltage=pick_up,
+        drop_out_voltage=drop_out, stated_temp=stated,
+        operate_time=optional("operate_time", "time"), release_time=optional("release_time", "time"),
+    )
+    s.finish()
+    return coil, sheet
+
+
 def _mechanics_currents(arm: Armature, coil: Coil) -> dict[str, float]:
     """Currents (A) the mechanics need, for keys a drive file leaves out: pull-in and hold
     are the static force-balance currents at the lowest inductance of the tolerance band
@@ -928,18 +1050,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
     brd = load_board(board_path)
 
     armature = _read_armature(_section(source, data, "armature")) if "armature" in data else None
-    s = _section(source, data, "coil")
-    coil = Coil(
-        resistance=s.quantity("resistance", "resistance", positive=True),
-        reference_temp=s.quantity("reference_temp", "temperature", 20.0),
-        inductance=s.quantity("inductance", "inductance",
-                              _MISSING if armature is None else armature.inductance_closed,
-                              positive=True),
-        resistance_tolerance=s.fraction("resistance_tolerance", 0.0),
-        inductance_tolerance=s.fraction("inductance_tolerance", 0.0),
-        tolerance_distribution=s.choice("tolerance_distribution", DISTRIBUTIONS, "uniform"),
-    )
-    s.finish()
+    coil, sheet = _read_coil(_section(source, data, "coil"), armature)
     s = _section(source, data, "supply")
     supply = Supply(s.quantity("min", "voltage", positive=True),
                     s.quantity("nominal", "voltage", positive=True),
@@ -968,6 +1079,12 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
     derived: list[str] = []
 
     def current(sec_: _Section, key: str, mech: float | None) -> float:
+        if sec_.name in sheet:   # from the coil's datasheet voltages
+            voltage_key = _SHEET_CURRENTS[sec_.name]
+            if key in sec_.table:
+                raise _both(sec_, key, voltage_key, f"the {sec_.name.replace('_', '-')} current")
+            sec_.used.add(key)
+            return sheet[sec_.name]
         if need is None or key in sec_.table:
             return sec_.quantity(key, "current", positive=True)
         sec_.used.add(key)
@@ -982,7 +1099,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
         return mech
 
     optional = armature is not None
-    s = _section(source, data, "pull_in", required=not optional)
+    s = _section(source, data, "pull_in", required=not (optional or "pull_in" in sheet))
     pull_in = PullIn(current(s, "current", None if need is None else need["pull_in"]),
                      s.quantity("margin", "dimensionless", 1.5),
                      # with [armature] the seat time comes from the force balance itself and
@@ -1007,7 +1124,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
         raise s.fail("current", f"{hold.current:g} A{what} is not below pull_in.current "
                      f"({pull_in.current:g} A), expected hold < pull-in")
     s.finish()
-    s = _section(source, data, "release", required=not optional)
+    s = _section(source, data, "release", required=not (optional or "release" in sheet))
     release = Release(current(s, "current", None if need is None else need["release"]))
     if release.current >= hold.current:
         what = " (derived from the mechanics)" if "release.current" in derived else ""

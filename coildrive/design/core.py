@@ -9,8 +9,11 @@ outputs that show one.
 
 from __future__ import annotations
 
+import dataclasses
+
 from ..config import Drive
 from ..errors import InputError
+from .datasheet import datasheet_checks, datasheet_result, uses_datasheet
 from .firmware import firmware_setting  # noqa: F401  (re-exported: part of this module's API)
 from .holds import strategy_for
 from .result import Design
@@ -22,7 +25,12 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     ``samples`` > 0 adds a tolerance Monte Carlo of that many points (see
     :func:`coildrive.design.montecarlo.monte_carlo`; voltage-mode holds only).
     """
-    return strategy_for(drive).design(drive, samples, seed)
+    out = strategy_for(drive).design(drive, samples, seed)
+    if uses_datasheet(drive):
+        sheet = datasheet_result(drive, out.release)
+        out = dataclasses.replace(out, datasheet=sheet, checks=out.checks + datasheet_checks(
+            drive, out.pull_in, out.release, sheet))
+    return out
 
 
 #: Most samples one simulated actuation may have (a CSV of about 0.4 GB); past it the

@@ -375,6 +375,7 @@ class Design:
     peak_table: PeakTable | None = None
     armature: ArmatureResult | None = None
     split_decay: SplitDecayResult | None = None
+    datasheet: object | None = None   # design.datasheet.DatasheetResult, with datasheet inputs
 
     @property
     def ok(self) -> bool:
@@ -409,6 +410,8 @@ class Design:
             out["armature"] = asdict(self.armature)
         if self.split_decay is not None:
             out["split_decay"] = asdict(self.split_decay)
+        if self.datasheet is not None:
+            out["datasheet"] = asdict(self.datasheet)
         if self.peak_table is not None:
             out["peak_table"] = asdict(self.peak_table)
         if current_mode is not None:
