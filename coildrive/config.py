@@ -83,6 +83,8 @@ BOUNDS: dict[str, tuple[float, float, str]] = {
     "coil.stated_temp": (-75.0, 250.0, "temperature"),
     "coil.operate_time": (1e-6, 10.0, "time"),
     "coil.release_time": (1e-6, 10.0, "time"),
+    "coil.flux_current": (0.0, 1000.0, "current"),
+    "coil.flux_linkage": (0.0, 1000.0, "flux_linkage"),
     "supply.min": (0.5, 1000.0, "voltage"),
     "supply.nominal": (0.5, 1000.0, "voltage"),
     "supply.max": (0.5, 1000.0, "voltage"),
@@ -192,6 +194,11 @@ class Coil:
     ``pick_up_voltage`` and ``drop_out_voltage`` (V) at the coil temperature
     ``stated_temp`` (degC) give the pull-in and drop-out currents; ``operate_time`` and
     ``release_time`` (s) are the datasheet's response times, for the design's checks.
+
+    A saturating coil (docs/coil-model.md): ``flux_current`` (A) and ``flux_linkage``
+    (Wb) tabulate its flux linkage against current, from (0, 0), both rising; empty for
+    the linear coil. With a curve, ``inductance`` is the slope of its first segment
+    (the small-signal value, for reports) and the tolerance scales the whole curve.
     """
 
     resistance: float
@@ -207,6 +214,8 @@ class Coil:
     stated_temp: float | None = None
     operate_time: float = 0.0
     release_time: float = 0.0
+    flux_current: tuple[float, ...] = ()
+    flux_linkage: tuple[float, ...] = ()
 
     @property
     def derived(self) -> tuple[str, ...]:
@@ -515,7 +524,7 @@ class Drive:
 #: Keys added after the first release: left out of the input hash while they hold their
 #: default, so that files which do not use them keep their hash (and headers their bytes).
 _LATER_FIELDS = (
-    (("coil",), Coil, _DATASHEET_KEYS + ("stated_temp",)),
+    (("coil",), Coil, _DATASHEET_KEYS + ("stated_temp", "flux_current", "flux_linkage")),
     (("hold",), Hold, _CURRENT_MODE_KEYS + ("regulation",)),
     (("pull_in",), PullIn, ("current_margin", "settle_time", "compensate")),
     (("board", "sense"), Sense, ("resistance_tolerance", "gain_tolerance")),
@@ -859,21 +868,76 @@ def _read_coil(s: _Section, armature: Armature | None) -> tuple[Coil, dict[str, 
                 raise s.fail(key, f"gives a {section.replace('_', '-')} current of {value:g} A, "
                              f"outside {bounds_text(section + '.current')}")
             sheet[section] = value
+    table = _read_flux_curve(s, armature)
     coil = Coil(
         resistance=resistance,
         reference_temp=reference_temp,
-        inductance=s.quantity("inductance", "inductance",
-                              _MISSING if armature is None else armature.inductance_closed,
-                              positive=True),
+        inductance=table[1][1] / table[0][1] if table else
+        s.quantity("inductance", "inductance",
+                   _MISSING if armature is None else armature.inductance_closed, positive=True),
         resistance_tolerance=tol_r,
         inductance_tolerance=s.fraction("inductance_tolerance", 0.0),
         tolerance_distribution=s.choice("tolerance_distribution", DISTRIBUTIONS, "uniform"),
         rated_voltage=rated_v, rated_power=rated_p, pick_up_voltage=pick_up,
         drop_out_voltage=drop_out, stated_temp=stated,
         operate_time=optional("operate_time", "time"), release_time=optional("release_time", "time"),
+        flux_current=table[0] if table else (), flux_linkage=table[1] if table else (),
     )
     s.finish()
     return coil, sheet
+
+
+#: Points a flux-linkage table may have.
+FLUX_POINTS = (3, 200)
+
+
+def _read_flux_curve(s: _Section, armature: Armature | None):
+    """``flux_current`` and ``flux_linkage``: ``(currents, fluxes)`` (A, Wb), or ``None``."""
+    keys = [k for k in ("flux_current", "flux_linkage") if k in s.table]
+    if not keys:
+        return None
+    if "inductance" in s.table:
+        raise _both(s, "inductance", keys[0], "the coil's inductance (the curve's slope)")
+    if armature is not None:
+        raise s.fail(keys[0], "a flux-linkage curve with [armature] is not supported yet: give "
+                     "coil.inductance (or armature.inductance_open/closed) instead")
+    for key, other in (("flux_current", "flux_linkage"), ("flux_linkage", "flux_current")):
+        if other not in s.table:
+            raise s.fail(key, f"needs coil.{other} too (the table's other column)")
+    columns = []
+    for key, dimension in (("flux_current", "current"), ("flux_linkage", "flux_linkage")):
+        raw = s._get(key, _MISSING)
+        src, full = s.where(key)
+        low, high = FLUX_POINTS
+        if not isinstance(raw, list) or not low <= len(raw) <= high:
+            raise s.fail(key, f"{short_repr(raw)} is not a list of {low}..{high} values")
+        values = tuple(parse_quantity(x, dimension, src, f"{full}[{n}]") for n, x in enumerate(raw))
+        if not all(_in_bounds(x, full) for x in values):
+            raise s.fail(key, f"has a value outside {bounds_text(full)}")
+        if values[0] != 0 or not all(b > a for a, b in zip(values, values[1:])):
+            raise s.fail(key, "must start at 0 and rise at every point (a flux-linkage curve is "
+                         "monotone: one current for each flux)")
+        columns.append(values)
+    if len(columns[0]) != len(columns[1]):
+        raise s.fail("flux_linkage", f"has {len(columns[1])} values for the {len(columns[0])} of "
+                     "coil.flux_current, expected one flux per current")
+    slope = columns[1][1] / columns[0][1]
+    if not _in_bounds(slope, "coil.inductance"):
+        raise s.fail("flux_linkage", f"starts with a slope of {slope:g} H, outside "
+                     f"{bounds_text('coil.inductance')}")
+    return columns[0], columns[1]
+
+
+def _flux_curve_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel) -> None:
+    """What a flux-linkage curve does not yet work with: one line naming the key."""
+    if not coil.flux_current:
+        return
+    if hold.mode == "current":
+        raise InputError(source, "hold.mode", "\"current\" with a flux-linkage curve "
+                         "(coil.flux_current) is not supported yet: use mode = \"voltage\"")
+    if freewheel.split_decay:
+        raise InputError(source, "freewheel.split_decay", "split decay with a flux-linkage curve "
+                         "(coil.flux_current) is not supported yet")
 
 
 def _mechanics_currents(arm: Armature, coil: Coil) -> dict[str, float]:
@@ -1145,6 +1209,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
         fw_board = {k: v for k, v in fw_board.items() if k == "type" or v}
     merged, origins = _merged(brd.source, fw_board, source, fw_drive)
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
+    _flux_curve_limits(source, coil, hold, freewheel)
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:
         raise InputError(origins.get("clamp_voltage", source), "freewheel.clamp_voltage",
                          f"{freewheel.clamp_voltage:g} V is not above supply.max ({supply.max:g} V): "

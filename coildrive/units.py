@@ -46,6 +46,7 @@ DIMENSIONS: dict[str, Dimension] = {
     "damping": Dimension("damping", "N*s/m"),
     "power": Dimension("power", "W"),
     "energy": Dimension("energy", "J"),
+    "flux_linkage": Dimension("flux linkage", "Wb"),
     "dimensionless": Dimension("plain number", ""),
 }
 
@@ -75,6 +76,9 @@ _UNITS: dict[str, tuple[str, float, bool]] = {
     "N\u00b7s/m": ("damping", 1.0, False),
     "W": ("power", 1.0, True),
     "J": ("energy", 1.0, True),
+    "Wb": ("flux_linkage", 1.0, True),
+    "V*s": ("flux_linkage", 1.0, False),
+    "Vs": ("flux_linkage", 1.0, False),
     "%": ("dimensionless", 0.01, False),
 }
 _TEMPERATURE_UNITS = {"degC": 0.0, "\u00b0C": 0.0, "K": -273.15}
@@ -111,7 +115,7 @@ def example_for(dimension: str) -> str:
         "thermal_resistance": '"15 K/W"', "temperature": '"-10 degC"',
         "mass": '"12 g"', "force": '"3.5 N"', "stiffness": '"800 N/m"',
         "length": '"1.5 mm"', "damping": '"0.2 N*s/m"', "power": '"2 W"',
-        "energy": '"50 mJ"', "dimensionless": "0.1 or \"10 %\"",
+        "energy": '"50 mJ"', "flux_linkage": '"12 mWb"', "dimensionless": "0.1 or \"10 %\"",
     }[dimension]
 
 

@@ -167,6 +167,9 @@ def _live(drive: Path, board: Optional[str], port: str, as_json: bool, header: O
     if d.hold.mode != "voltage":
         raise InputError(d.source, "hold.mode", "live tuning steps the duty of a voltage-mode hold; for "
                          'mode = "current" the thresholds come from coildrive design')
+    if d.coil.flux_current:
+        raise InputError(d.source, "coil.flux_current", "live tuning does not support a flux-linkage "
+                         "curve yet: tune with coil.inductance, then design with the curve")
     des = design(d)
     if not des.ok:
         # a failing design (switch voltage, coil temperature, ...) must not drive hardware

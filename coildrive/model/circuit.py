@@ -49,6 +49,7 @@ import numpy as np
 
 from ..config import Drive
 from ..copper import COPPER_ALPHA, copper_resistance  # noqa: F401  (re-exported)
+from . import flux
 
 
 @dataclass(frozen=True)
@@ -66,7 +67,7 @@ class Loop:
     r_on: np.ndarray
     r_off: np.ndarray
     v_off: np.ndarray
-    inductance: np.ndarray
+    inductance: np.ndarray   # or a flux.FluxCoil: a saturating coil at these points
     r_coil: np.ndarray
     supply: np.ndarray
     bypassed: bool = False
@@ -138,10 +139,13 @@ def loop(drive: Drive, supply, coil_temp, r_factor=1.0, l_factor=1.0, path: str 
     # With a moving armature the switched segments that use Loop.inductance (the PWM hold,
     # the release until the armature lets go) all have it seated: the closed inductance.
     base = coil.inductance if drive.armature is None else drive.armature.inductance_closed
-    inductance = base * np.asarray(l_factor, float)
+    curve = coil.flux_current and flux.curve(coil.flux_current, coil.flux_linkage)
+    inductance = (1.0 if curve else base) * np.asarray(l_factor, float)
     arrays = np.broadcast_arrays(supply, r_on, r_off, v_off, inductance, r_coil, v_diode, v_fast)
     # read-only broadcast views: no copies of scalars spread over many points
     supply, r_on, r_off, v_off, inductance, r_coil, v_diode, v_fast = arrays
+    if curve:   # a saturating coil: its curve, scaled by the tolerance (model.flux)
+        inductance = flux.FluxCoil(curve, inductance)
     return Loop(v_on=supply, r_on=r_on, r_off=r_off, v_off=v_off, inductance=inductance,
                 r_coil=r_coil, supply=supply, bypassed=bypassed, v_diode=v_diode, v_fast=v_fast)
 
