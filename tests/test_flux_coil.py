@@ -246,3 +246,11 @@ def test_armature_with_a_curve_is_refused(tmp_path):
     path.write_text(text.replace('board = "', 'board = "', 1))
     r = run_cli("design", str(path), cwd=EXAMPLES)
     assert r.returncode == 2 and "[armature] is not supported yet" in r.stderr, r.stderr
+
+
+@pytest.mark.parametrize("args", [("tune", str(EXAMPLE)), ("tune", str(EXAMPLE), "--port", "loop://")])
+def test_tune_refuses_a_curve_in_one_line(args):
+    r = run_cli(*args)
+    assert r.returncode == 2, (r.stdout, r.stderr)
+    lines = r.stderr.strip().splitlines()
+    assert len(lines) == 1 and "coil.flux_current" in lines[0] and "Traceback" not in r.stderr, r.stderr

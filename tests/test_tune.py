@@ -464,7 +464,10 @@ def _paste_hold(text: str, section: str) -> str:
 
 
 @pytest.mark.parametrize("board", sorted(p.stem for p in BOARDS.glob("*.toml")))
-@pytest.mark.parametrize("example", sorted(p.name for p in EXAMPLES.glob("*.toml")))
+# (a saturating coil's example is left out: tune refuses a flux-linkage curve, which
+# tests/test_flux_coil.py checks)
+@pytest.mark.parametrize("example", sorted(p.name for p in EXAMPLES.glob("*.toml")
+                                           if "flux_current" not in p.read_text()))
 def test_every_offered_frequency_is_exact_and_the_pasted_hold_designs_to_it(tmp_path, example, board):
     """Timer arithmetic: every frequency offered is a whole number of Hz equal to
     clock / (prescaler x period) exactly; the [hold] printed for the recommendation,
