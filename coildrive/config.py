@@ -61,6 +61,9 @@ _ENERGY_RATINGS = ("diode_energy_rating", "zener_energy_rating", "resistor_energ
                    "clamp_energy_rating")
 #: Freewheel keys of split decay (only with ``split_decay = true``).
 _BYPASS_KEYS = ("bypass_resistance", "bypass_lead", "bypass_power_rating")
+#: Datasheet keys of ``[coil]`` (docs/coil-model.md).
+_DATASHEET_KEYS = ("rated_voltage", "rated_power", "pick_up_voltage", "drop_out_voltage",
+                   "operate_time", "release_time")
 _FREEWHEEL_LATER = ("split_decay", "bypass_resistance", "bypass_lead", "diode_power_rating",
                     "zener_power_rating", "resistor_power_rating", "clamp_power_rating",
                     "bypass_power_rating", "power_derating", *_FREEWHEEL_TOLERANCES,
@@ -79,6 +82,15 @@ BOUNDS: dict[str, tuple[float, float, str]] = {
     "coil.resistance": (1e-3, 100e3, "resistance"),
     "coil.reference_temp": (-75.0, 250.0, "temperature"),
     "coil.inductance": (1e-6, 100.0, "inductance"),
+    "coil.rated_voltage": (0.1, 10e3, "voltage"),
+    "coil.rated_power": (1e-4, 100e3, "power"),
+    "coil.pick_up_voltage": (0.01, 10e3, "voltage"),
+    "coil.drop_out_voltage": (0.001, 10e3, "voltage"),
+    "coil.stated_temp": (-75.0, 250.0, "temperature"),
+    "coil.operate_time": (1e-6, 10.0, "time"),
+    "coil.release_time": (1e-6, 10.0, "time"),
+    "coil.flux_current": (0.0, 1000.0, "current"),
+    "coil.flux_linkage": (0.0, 1000.0, "flux_linkage"),
     "supply.min": (0.5, 1000.0, "voltage"),
     "supply.nominal": (0.5, 1000.0, "voltage"),
     "supply.max": (0.5, 1000.0, "voltage"),
@@ -190,6 +202,17 @@ class Coil:
 
     Tolerances are fractions (0.1 = +/-10 %); ``tolerance_distribution`` is used by the
     Monte Carlo (``normal`` reads the tolerance as 3 sigma).
+
+    Datasheet inputs (0 = not given; see docs/coil-model.md): ``rated_voltage`` (V) and
+    ``rated_power`` (W) at ``reference_temp`` give ``resistance = V^2 / P``;
+    ``pick_up_voltage`` and ``drop_out_voltage`` (V) at the coil temperature
+    ``stated_temp`` (degC) give the pull-in and drop-out currents; ``operate_time`` and
+    ``release_time`` (s) are the datasheet's response times, for the design's checks.
+
+    A saturating coil (docs/coil-model.md): ``flux_current`` (A) and ``flux_linkage``
+    (Wb) tabulate its flux linkage against current, from (0, 0), both rising; empty for
+    the linear coil. With a curve, ``inductance`` is the slope of its first segment
+    (the small-signal value, for reports) and the tolerance scales the whole curve.
     """
 
     resistance: float
@@ -198,6 +221,22 @@ class Coil:
     resistance_tolerance: float
     inductance_tolerance: float
     tolerance_distribution: str = "uniform"
+    rated_voltage: float = 0.0
+    rated_power: float = 0.0
+    pick_up_voltage: float = 0.0
+    drop_out_voltage: float = 0.0
+    stated_temp: float | None = None
+    operate_time: float = 0.0
+    release_time: float = 0.0
+    flux_current: tuple[float, ...] = ()
+    flux_linkage: tuple[float, ...] = ()
+
+    @property
+    def derived(self) -> tuple[str, ...]:
+        """The file keys whose values came from the datasheet keys."""
+        return tuple(key for key, given in (("coil.resistance", self.rated_voltage),
+                                            ("pull_in.current", self.pick_up_voltage),
+                                            ("release.current", self.drop_out_voltage)) if given)
 
 
 @dataclass(frozen=True)
@@ -547,6 +586,7 @@ class Drive:
 #: Keys added after the first release: left out of the input hash while they hold their
 #: default, so that files which do not use them keep their hash (and headers their bytes).
 _LATER_FIELDS = (
+    (("coil",), Coil, _DATASHEET_KEYS + ("stated_temp", "flux_current", "flux_linkage")),
     (("hold",), Hold, _CURRENT_MODE_KEYS + ("regulation",)),
     (("thermal",), Thermal, ("capacity",)),
     (("pull_in",), PullIn, ("current_margin", "settle_time", "compensate")),
@@ -860,6 +900,165 @@ def _read_armature(s: _Section) -> Armature:
     return arm
 
 
+#: Which datasheet voltage of ``[coil]`` gives the current of each section.
+_SHEET_CURRENTS = {"pull_in": "pick_up_voltage", "release": "drop_out_voltage"}
+
+
+def _both(s: _Section, key: str, other: str, what: str) -> InputError:
+    """Two forms of the same quantity: one line naming both keys."""
+    src, full = s.where(key)
+    return InputError(src, f"{full} and coil.{other}", f"both give {what}; keep one of them")
+
+
+def _read_coil(s: _Section, armature: Armature | None) -> tuple[Coil, dict[str, float]]:
+    """``[coil]``, and the currents its datasheet voltages give (by section name).
+
+    Resistance: ``resistance``, or ``rated_voltage^2 / rated_power`` (both at
+    ``reference_temp``). The pick-up (must-operate) voltage holds for every part of the
+    tolerance band, so the pull-in current is taken at the lowest resistance,
+    ``V_pick_up / (R(T_stated) (1 - tol))``: the most any part can need. The drop-out
+    (must-release) voltage gives the drop-out current at the highest,
+    ``V_drop_out / (R(T_stated) (1 + tol))``: the least, which makes the release the
+    longest. ``R(T)`` is copper's (IEC 60028, :mod:`coildrive.copper`).
+    """
+    from .copper import copper_resistance
+
+    rated = [k for k in ("rated_voltage", "rated_power") if k in s.table]
+    if rated and "resistance" in s.table:
+        raise _both(s, "resistance", rated[0], "the coil's resistance (rated_voltage^2 / "
+                    "rated_power at reference_temp)")
+    if rated:
+        for key, other in (("rated_voltage", "rated_power"), ("rated_power", "rated_voltage")):
+            if key in s.table and other not in s.table:
+                raise s.fail(key, f"needs coil.{other} too: the resistance is rated_voltage^2 / "
+                             "rated_power (or give coil.resistance instead)")
+        rated_v = s.quantity("rated_voltage", "voltage", positive=True)
+        rated_p = s.quantity("rated_power", "power", positive=True)
+        resistance = rated_v * rated_v / rated_p
+        if not _in_bounds(resistance, "coil.resistance"):
+            raise s.fail("rated_power", f"gives a resistance of {resistance:g} ohm (rated_voltage^2 / "
+                         f"rated_power), outside {bounds_text('coil.resistance')}")
+    else:
+        resistance = s.quantity("resistance", "resistance", positive=True)
+        rated_v = rated_p = 0.0
+    reference_temp = s.quantity("reference_temp", "temperature", 20.0)
+    tol_r = s.fraction("resistance_tolerance", 0.0)
+
+    def optional(key: str, dimension: str) -> float:
+        return s.quantity(key, dimension, positive=True) if key in s.table else 0.0
+
+    pick_up = optional("pick_up_voltage", "voltage")
+    drop_out = optional("drop_out_voltage", "voltage")
+    stated = None
+    if pick_up or drop_out:
+        stated = s.quantity("stated_temp", "temperature", reference_temp)
+    elif "stated_temp" in s.table:
+        raise s.fail("stated_temp", "is the coil temperature of pick_up_voltage and "
+                     "drop_out_voltage; give one of them, or leave stated_temp out")
+    if pick_up and rated_v and pick_up > rated_v:
+        raise s.fail("pick_up_voltage", f"{pick_up:g} V is above rated_voltage ({rated_v:g} V), "
+                     "expected the pick-up (must-operate) voltage below the rating")
+    if drop_out and pick_up and drop_out >= pick_up:
+        raise s.fail("drop_out_voltage", f"{drop_out:g} V is not below pick_up_voltage "
+                     f"({pick_up:g} V), expected drop-out < pick-up")
+    sheet: dict[str, float] = {}
+    if stated is not None:
+        r_stated = float(copper_resistance(resistance, reference_temp, stated))
+        for section, voltage, r_end in (("pull_in", pick_up, r_stated * (1.0 - tol_r)),
+                                        ("release", drop_out, r_stated * (1.0 + tol_r))):
+            if not voltage:
+                continue
+            value = voltage / r_end
+            key = _SHEET_CURRENTS[section]
+            if not _in_bounds(value, f"{section}.current"):
+                raise s.fail(key, f"gives a {section.replace('_', '-')} current of {value:g} A, "
+                             f"outside {bounds_text(section + '.current')}")
+            sheet[section] = value
+    table = _read_flux_curve(s, armature)
+    coil = Coil(
+        resistance=resistance,
+        reference_temp=reference_temp,
+        inductance=table[1][1] / table[0][1] if table else
+        s.quantity("inductance", "inductance",
+                   _MISSING if armature is None else armature.inductance_closed, positive=True),
+        resistance_tolerance=tol_r,
+        inductance_tolerance=s.fraction("inductance_tolerance", 0.0),
+        tolerance_distribution=s.choice("tolerance_distribution", DISTRIBUTIONS, "uniform"),
+        rated_voltage=rated_v, rated_power=rated_p, pick_up_voltage=pick_up,
+        drop_out_voltage=drop_out, stated_temp=stated,
+        operate_time=optional("operate_time", "time"), release_time=optional("release_time", "time"),
+        flux_current=table[0] if table else (), flux_linkage=table[1] if table else (),
+    )
+    s.finish()
+    return coil, sheet
+
+
+#: Points a flux-linkage table may have.
+FLUX_POINTS = (3, 200)
+
+
+def _read_flux_curve(s: _Section, armature: Armature | None):
+    """``flux_current`` and ``flux_linkage``: ``(currents, fluxes)`` (A, Wb), or ``None``."""
+    keys = [k for k in ("flux_current", "flux_linkage") if k in s.table]
+    if not keys:
+        return None
+    if "inductance" in s.table:
+        raise _both(s, "inductance", keys[0], "the coil's inductance (the curve's slope)")
+    if armature is not None:
+        raise s.fail(keys[0], "a flux-linkage curve with [armature] is not supported yet: give "
+                     "coil.inductance (or armature.inductance_open/closed) instead")
+    for key, other in (("flux_current", "flux_linkage"), ("flux_linkage", "flux_current")):
+        if other not in s.table:
+            raise s.fail(key, f"needs coil.{other} too (the table's other column)")
+    columns = []
+    for key, dimension in (("flux_current", "current"), ("flux_linkage", "flux_linkage")):
+        raw = s._get(key, _MISSING)
+        src, full = s.where(key)
+        low, high = FLUX_POINTS
+        if not isinstance(raw, list) or not low <= len(raw) <= high:
+            raise s.fail(key, f"{short_repr(raw)} is not a list of {low}..{high} values")
+        values = tuple(parse_quantity(x, dimension, src, f"{full}[{n}]") for n, x in enumerate(raw))
+        if not all(_in_bounds(x, full) for x in values):
+            raise s.fail(key, f"has a value outside {bounds_text(full)}")
+        if values[0] != 0 or not all(b > a for a, b in zip(values, values[1:])):
+            raise s.fail(key, "must start at 0 and rise at every point (a flux-linkage curve is "
+                         "monotone: one current for each flux)")
+        columns.append(values)
+    if len(columns[0]) != len(columns[1]):
+        raise s.fail("flux_linkage", f"has {len(columns[1])} values for the {len(columns[0])} of "
+                     "coil.flux_current, expected one flux per current")
+    slope = columns[1][1] / columns[0][1]
+    if not _in_bounds(slope, "coil.inductance"):
+        raise s.fail("flux_linkage", f"starts with a slope of {slope:g} H, outside "
+                     f"{bounds_text('coil.inductance')}")
+    return columns[0], columns[1]
+
+
+def _flux_curve_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel,
+                       switch: Switch, thermal: Thermal, duty: "Duty | None") -> None:
+    """What a flux-linkage curve does not yet work with: one line naming the key."""
+    if not coil.flux_current:
+        return
+    if hold.regulation == "closed_loop":
+        raise InputError(source, "hold.regulation", "\"closed_loop\" with a flux-linkage curve "
+                         "(coil.flux_current) is not supported yet: its gains come from a linear "
+                         "coil; use \"fixed\" or \"supply_table\"")
+    if switch.topology == "full_bridge":
+        raise InputError(source, "switch.topology", "\"full_bridge\" with a flux-linkage curve "
+                         "(coil.flux_current) is not supported yet")
+    if duty is not None or thermal.capacity > 0:
+        raise InputError(source, "duty" if duty is not None else "thermal.capacity",
+                         "an on/off cycle's coil temperature with a flux-linkage curve "
+                         "(coil.flux_current) is not supported yet: leave [duty] and "
+                         "thermal.capacity / time_constant out")
+    if hold.mode == "current":
+        raise InputError(source, "hold.mode", "\"current\" with a flux-linkage curve "
+                         "(coil.flux_current) is not supported yet: use mode = \"voltage\"")
+    if freewheel.split_decay:
+        raise InputError(source, "freewheel.split_decay", "split decay with a flux-linkage curve "
+                         "(coil.flux_current) is not supported yet")
+
+
 def _mechanics_currents(arm: Armature, coil: Coil) -> dict[str, float]:
     """Currents (A) the mechanics need, for keys a drive file leaves out: pull-in and hold
     are the static force-balance currents at the lowest inductance of the tolerance band
@@ -1067,18 +1266,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
     brd = load_board(board_path)
 
     armature = _read_armature(_section(source, data, "armature")) if "armature" in data else None
-    s = _section(source, data, "coil")
-    coil = Coil(
-        resistance=s.quantity("resistance", "resistance", positive=True),
-        reference_temp=s.quantity("reference_temp", "temperature", 20.0),
-        inductance=s.quantity("inductance", "inductance",
-                              _MISSING if armature is None else armature.inductance_closed,
-                              positive=True),
-        resistance_tolerance=s.fraction("resistance_tolerance", 0.0),
-        inductance_tolerance=s.fraction("inductance_tolerance", 0.0),
-        tolerance_distribution=s.choice("tolerance_distribution", DISTRIBUTIONS, "uniform"),
-    )
-    s.finish()
+    coil, sheet = _read_coil(_section(source, data, "coil"), armature)
     s = _section(source, data, "supply")
     supply = Supply(s.quantity("min", "voltage", positive=True),
                     s.quantity("nominal", "voltage", positive=True),
@@ -1112,6 +1300,12 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
     derived: list[str] = []
 
     def current(sec_: _Section, key: str, mech: float | None) -> float:
+        if sec_.name in sheet:   # from the coil's datasheet voltages
+            voltage_key = _SHEET_CURRENTS[sec_.name]
+            if key in sec_.table:
+                raise _both(sec_, key, voltage_key, f"the {sec_.name.replace('_', '-')} current")
+            sec_.used.add(key)
+            return sheet[sec_.name]
         if need is None or key in sec_.table:
             return sec_.quantity(key, "current", positive=True)
         sec_.used.add(key)
@@ -1126,7 +1320,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
         return mech
 
     optional = armature is not None
-    s = _section(source, data, "pull_in", required=not optional)
+    s = _section(source, data, "pull_in", required=not (optional or "pull_in" in sheet))
     pull_in = PullIn(current(s, "current", None if need is None else need["pull_in"]),
                      s.quantity("margin", "dimensionless", 1.5),
                      # with [armature] the seat time comes from the force balance itself and
@@ -1151,7 +1345,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
         raise s.fail("current", f"{hold.current:g} A{what} is not below pull_in.current "
                      f"({pull_in.current:g} A), expected hold < pull-in")
     s.finish()
-    s = _section(source, data, "release", required=not optional)
+    s = _section(source, data, "release", required=not (optional or "release" in sheet))
     release = Release(current(s, "current", None if need is None else need["release"]))
     if release.current >= hold.current:
         what = " (derived from the mechanics)" if "release.current" in derived else ""
@@ -1173,6 +1367,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
     merged, origins = _merged(brd.source, fw_board, source, fw_drive)
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
     _check_bridge(source, origins, switch, freewheel, supply, hold, armature)
+    _flux_curve_limits(source, coil, hold, freewheel, switch, thermal, duty)
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:
         raise InputError(origins.get("clamp_voltage", source), "freewheel.clamp_voltage",
                          f"{freewheel.clamp_voltage:g} V is not above supply.max ({supply.max:g} V): "

@@ -48,6 +48,7 @@ DIMENSIONS: dict[str, Dimension] = {
     "energy": Dimension("energy", "J"),
     "heat_capacity": Dimension("heat capacity", "J/K"),
     "capacitance": Dimension("capacitance", "F"),
+    "flux_linkage": Dimension("flux linkage", "Wb"),
     "dimensionless": Dimension("plain number", ""),
 }
 
@@ -80,6 +81,9 @@ _UNITS: dict[str, tuple[str, float, bool]] = {
     "J/K": ("heat_capacity", 1.0, True),
     "J/degC": ("heat_capacity", 1.0, False),
     "F": ("capacitance", 1.0, True),
+    "Wb": ("flux_linkage", 1.0, True),
+    "V*s": ("flux_linkage", 1.0, False),
+    "Vs": ("flux_linkage", 1.0, False),
     "%": ("dimensionless", 0.01, False),
 }
 _TEMPERATURE_UNITS = {"degC": 0.0, "\u00b0C": 0.0, "K": -273.15}
@@ -117,7 +121,7 @@ def example_for(dimension: str) -> str:
         "mass": '"12 g"', "force": '"3.5 N"', "stiffness": '"800 N/m"',
         "length": '"1.5 mm"', "damping": '"0.2 N*s/m"', "power": '"2 W"',
         "energy": '"50 mJ"', "heat_capacity": '"12 J/K"', "capacitance": '"470 uF"',
-        "dimensionless": "0.1 or \"10 %\"",
+        "flux_linkage": '"12 mWb"', "dimensionless": "0.1 or \"10 %\"",
     }[dimension]
 
 

@@ -28,6 +28,7 @@ from types import SimpleNamespace
 import numpy as np
 import pytest
 
+from coildrive.design.thermal_cycle import cycling
 from coildrive.config import Timer, load_drive
 from coildrive.design.corners import corner_grid
 from coildrive.design import design
@@ -465,6 +466,9 @@ def _paste_hold(text: str, section: str) -> str:
 
 @pytest.mark.parametrize("example,board", [
     (e, b) for e in sorted(p.name for p in EXAMPLES.glob("*.toml"))
+    # (a saturating coil's example is left out: tune refuses a flux-linkage curve, which
+    # tests/test_flux_coil.py checks)
+    if "flux_current" not in (EXAMPLES / e).read_text()
     for b in sorted(p.stem for p in BOARDS.glob("*.toml")) if loads(EXAMPLES / e, b)])
 def test_every_offered_frequency_is_exact_and_the_pasted_hold_designs_to_it(tmp_path, example, board):
     """Timer arithmetic: every frequency offered is a whole number of Hz equal to
@@ -501,8 +505,13 @@ def test_every_offered_frequency_is_exact_and_the_pasted_hold_designs_to_it(tmp_
     assert pasted.hold.frequency == rec.frequency_hz and pasted.hold.current == rec.hold_current_a
     d = design(pasted)
     assert d.hold.frequency_hz == rec.frequency_hz
-    assert (d.timer.prescaler, d.timer.period_ticks, d.timer.compare_ticks) == (
-        rec.prescaler, rec.period_ticks, rec.compare_ticks)
+    assert (d.timer.prescaler, d.timer.period_ticks) == (rec.prescaler, rec.period_ticks)
+    if cycling(pasted):
+        # over an on/off cycle the sweep heats the coil with the hold alone, the design with
+        # each actuation's peak too: a hotter coil may need up to one compare count more
+        assert 0 <= d.timer.compare_ticks - rec.compare_ticks <= 1, (d.timer.compare_ticks, rec.compare_ticks)
+    else:
+        assert d.timer.compare_ticks == rec.compare_ticks
 
 
 def test_a_duty_per_corner_is_evaluated_at_its_own_corner():

@@ -138,6 +138,14 @@ def _fit_one(t: np.ndarray, y: np.ndarray, v: float, t_on: float, fs: float) -> 
     return np.array([x[0] * r0, x[1] * l0, t_on + x[2] * span]), rms
 
 
+def coil_temperature(coil_temp: float | None) -> tuple[float, str | None]:
+    """The coil temperature a fit states (degC), and a note when the capture did not say it."""
+    if coil_temp is not None:
+        return float(coil_temp), None
+    return 20.0, ("coil temperature unknown: 20 degC assumed for reference_temp "
+                  f"(copper changes {COPPER_ALPHA:.2%} per K, IEC 60028)")
+
+
 def fit_capture(capture: Capture, board: Board, supply: float, coil_temp: float | None = None,
                 analysis: Analysis | None = None, motion_fraction: float = MOTION_FRACTION) -> CoilFit:
     """Fit R and L of the coil from every actuation of ``capture`` (see the module docstring).
@@ -209,10 +217,8 @@ def fit_capture(capture: Capture, board: Board, supply: float, coil_temp: float 
                          f"board's switch + sense resistance ({r_sw + r_sense:.4g} ohm): wrong supply "
                          "voltage or sense scaling?")
     known = coil_temp is not None
-    temp = float(coil_temp) if known else 20.0
-    if not known:
-        notes.append("coil temperature unknown: 20 degC assumed for reference_temp "
-                     f"(copper changes {COPPER_ALPHA:.2%} per K, IEC 60028)")
+    temp, note = coil_temperature(coil_temp)
+    notes += [note] if note else []
     if moves:
         notes.append(f"the armature moves: the rise is fitted up to {motion_fraction:.0%} of the current "
                      "at the top before the dip; the inductance is the open armature's")

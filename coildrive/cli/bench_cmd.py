@@ -164,8 +164,10 @@ def fit_command(
     current_scale: Optional[str] = typer.Option(None, "--current-scale", help=_SCALE_HELP),
     sample_interval: Optional[str] = typer.Option(None, "--sample-interval", help=_INTERVAL_HELP),
     as_json: bool = typer.Option(False, "--json", help="Print the fit as one JSON document on stdout."),
+    flux_curve: bool = typer.Option(False, "--flux-curve", help="Fit the coil's flux-linkage curve (a saturating coil) instead of one inductance; the rise must settle, or give --resistance (docs/coil-model.md)."),
+    resistance: Optional[str] = typer.Option(None, "--resistance", help='With --flux-curve: the coil\'s resistance at the capture\'s temperature, e.g. "22 ohm" (default: from the settled current).'),
 ) -> None:
-    """Fit the coil's R and L from the rise before the armature moves; print a \\[coil] section."""
+    """Fit the coil's R and L (with --flux-curve: its flux-linkage curve) from the rise before the armature moves; print a \\[coil] section."""
     from ..bench.analysis import analyse
     from ..bench.check import prepare_capture
     from ..bench.fit import fit_capture
@@ -181,6 +183,21 @@ def fit_command(
     t = _quantity(coil_temp, "temperature", "--coil-temp")
     if t is None:
         t = cap.meta.coil_temp_c
+    r = _quantity(resistance, "resistance", "--resistance")
+    if r is not None and not flux_curve:
+        raise InputError("--resistance", "", "is for --flux-curve (the plain fit finds R itself)")
+    if flux_curve:
+        from ..bench.flux_fit import fit_flux, flux_text
+
+        curve = fit_flux(cap, brd, v, t, r, analyse(cap))
+        if as_json:
+            typer.echo(json.dumps(curve.to_dict(), indent=2))
+            return
+        for note in curve.notes:
+            status(f"note: {note}")
+        status(flux_text(curve))
+        typer.echo(curve.coil_section(), nl=False)
+        return
     result = fit_capture(cap, brd, v, t, analyse(cap))
     if as_json:
         typer.echo(json.dumps(result.to_dict(), indent=2))

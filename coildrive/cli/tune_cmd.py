@@ -171,6 +171,9 @@ def _live(drive: Path, board: Optional[str], port: str, as_json: bool, header: O
         raise InputError(d.source, "hold.regulation", "live tuning steps a fixed compare; a closed-loop "
                          "hold sets its own compare every PWM period: set hold.current and run "
                          "coildrive design")
+    if d.coil.flux_current:
+        raise InputError(d.source, "coil.flux_current", "live tuning does not support a flux-linkage "
+                         "curve yet: tune with coil.inductance, then design with the curve")
     des = design(d)
     if not des.ok:
         # a failing design (switch voltage, coil temperature, ...) must not drive hardware

@@ -9,11 +9,14 @@ outputs that show one.
 
 from __future__ import annotations
 
+import dataclasses
+
 from ..config import Drive
 from ..errors import InputError
+from .datasheet import datasheet_checks, datasheet_result, uses_datasheet
 from .firmware import firmware_setting  # noqa: F401  (re-exported: part of this module's API)
 from .holds import strategy_for
-from .result import Design
+from .result import Check, Design
 
 
 def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
@@ -22,7 +25,27 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     ``samples`` > 0 adds a tolerance Monte Carlo of that many points (see
     :func:`coildrive.design.montecarlo.monte_carlo`; voltage-mode holds only).
     """
-    return strategy_for(drive).design(drive, samples, seed)
+    out = strategy_for(drive).design(drive, samples, seed)
+    if uses_datasheet(drive):
+        sheet = datasheet_result(drive, out.release)
+        out = dataclasses.replace(out, datasheet=sheet, checks=out.checks + datasheet_checks(
+            drive, out.pull_in, out.release, sheet))
+    if drive.coil.flux_current:
+        out = dataclasses.replace(out, checks=out.checks + [_curve_range(drive, out)])
+    return out
+
+
+def _curve_range(drive: Drive, d: Design) -> Check:
+    """A warning when the design's highest current (the over-current trip) lies past the
+    flux-linkage table, where the curve goes on straight at its end slope."""
+    top = drive.coil.flux_current[-1]
+    highest = max(d.adc.trip_current_a, d.pull_in.peak_end_current_max_a)
+    ok = highest <= top
+    return Check("flux_curve_range", ok,
+                 f"the flux-linkage table reaches {top:.4g} A; the highest current is {highest:.4g} A "
+                 "(the over-current trip)" + ("" if ok else ": above the table the curve is extended "
+                                              "straight at its end slope; measure up to there"),
+                 severity="warning")
 
 
 #: Most samples one simulated actuation may have (a CSV of about 0.4 GB); past it the

@@ -26,6 +26,7 @@ import math
 import numpy as np
 
 from ..config import Drive
+from ..model.flux import FluxCoil
 from ..model.rl import rise_time
 from .corners import CornerGrid
 from .envelope import reading_factors, supply_codes
@@ -64,6 +65,9 @@ def rise_check(drive: Drive, grid: CornerGrid, res: PointResults, conversion_hz:
     base_l = drive.coil.inductance if drive.armature is None else drive.armature.inductance_open
     # before the armature moves the rise sees its open inductance; motion only slows it
     ind = base_l * np.broadcast_to(np.asarray(res.l_factor, float), v.shape)
+    flux_coil = isinstance(lp.inductance, FluxCoil)
+    if flux_coil:   # a saturating coil rises through its curve (faster as it saturates)
+        ind = lp.inductance.with_scale(np.broadcast_to(np.asarray(lp.inductance.scale, float), v.shape))
     weakest = float(np.min(v / r))
     code = math.floor(RISE_FRACTION * weakest * low / lsb_a)
     by_supply = board.supply_sense is not None
@@ -83,9 +87,13 @@ def rise_check(drive: Drive, grid: CornerGrid, res: PointResults, conversion_hz:
     # turns lower it too, which only makes the rise faster)
     i_late = (code + 1 + NOISE_CODES) * lsb_a / low
     with np.errstate(divide="ignore", invalid="ignore"):
-        per_l = np.asarray(rise_time(i_late, 0.0, v, r, 1.0), float)      # s per henry
-        l_trip = (limit / s_high - 1.0) / conversion_hz / per_l
-    factor = float(max(np.min(l_trip), 0.0) / base_l)
+        if flux_coil:   # the time scales with the curve's scale: s per unit of scale
+            per_l = np.asarray(rise_time(i_late, 0.0, v, r, ind.with_scale(np.ones(v.shape))), float)
+            factor = float(max(np.min((limit / s_high - 1.0) / conversion_hz / per_l), 0.0))
+        else:
+            per_l = np.asarray(rise_time(i_late, 0.0, v, r, 1.0), float)      # s per henry
+            l_trip = (limit / s_high - 1.0) / conversion_hz / per_l
+            factor = float(max(np.min(l_trip), 0.0) / base_l)
     why = ""
     if code < MIN_RISE_CODES:
         why = f"the rise code {code} is within {MIN_RISE_CODES} codes of zero (sense too coarse)"

@@ -14,6 +14,7 @@ import numpy as np
 
 from ..config import Drive
 from ..model.circuit import full_bridge, split_decay
+from ..model.flux import small_signal
 from ..model.losses import HoldLosses
 from ..model.topology import topology_of
 from .corners import CornerGrid
@@ -78,7 +79,7 @@ def corners_of(grid: CornerGrid, res: PointResults, losses: HoldLosses | None = 
             label=grid.label(k),
             supply_v=float(res.supply[k]), ambient_c=float(res.ambient[k]),
             coil_temp_c=float(res.coil_temp[k]), resistance_ohm=float(res.loop.r_coil[k]),
-            inductance_h=float(res.loop.inductance[k]), pull_in_time_s=float(res.pull_in_time[k]),
+            inductance_h=float(small_signal(res.loop.inductance)[k]), pull_in_time_s=float(res.pull_in_time[k]),
             peak_end_current_a=float(hi.peak_end_current[k]),
             hold_mean_current_a=float(res.hold.mean[k]), hold_ripple_a=float(res.hold.ripple[k]),
             hold_rms_current_a=float(res.hold.rms[k]),

@@ -23,7 +23,7 @@ def summary_table(d: Design) -> Table:
     t.add_column("value", justify="right")
     t.add_column("where / how")
     h, r, tm, a = d.hold, d.release, d.timer, d.adc
-    rows = [*_topology_rows(d), *_tolerance_rows(d), *_pull_in_rows(d),
+    rows = [*_topology_rows(d), *_datasheet_rows(d), *_tolerance_rows(d), *_pull_in_rows(d),
         ("hold frequency", format_si(h.frequency_hz, "Hz", 6),
          f"prescaler {tm.prescaler}, period {tm.period_ticks} counts ({tm.frequency_error:+.3%})"),
         ("hold regulation", h.regulation.replace("_", " "), _regulation_how(d)),
@@ -77,6 +77,19 @@ def _topology_rows(d: Design) -> list:
     return [("switch topology", t.name.replace("_", " "),
              f"sense {t.sense_place}; the {t.switch_node} swings to {t.lowest_node_voltage_v:.4g} V "
              f"at turn-off ({t.lowest_node_event}, {t.lowest_node_corner})")]
+
+
+def _datasheet_rows(d: Design) -> list:
+    """Values taken from the coil's datasheet, each with its arithmetic."""
+    sheet = d.datasheet
+    if sheet is None:
+        return []
+    rows = [(f"{v.key} (datasheet)", format_si(v.value, v.unit, 4), v.source) for v in sheet.derived]
+    if sheet.release_estimate_s is not None:
+        rows.append(("armature open (estimate)", _ms(sheet.release_estimate_s),
+                     f"current to drop-out + the datasheet's release time "
+                     f"{_ms(sheet.release_time_s)}"))
+    return rows
 
 
 def _tolerance_rows(d: Design) -> list:

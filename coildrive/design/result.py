@@ -588,6 +588,7 @@ class Design:
     topology: TopologyResult | None = None
     rise_check: RiseCheck | None = None
     seat_check: SeatCheck | None = None
+    datasheet: object | None = None   # design.datasheet.DatasheetResult, with datasheet inputs
 
     @property
     def ok(self) -> bool:
@@ -628,6 +629,8 @@ class Design:
             out["armature"] = asdict(self.armature)
         if self.split_decay is not None:
             out["split_decay"] = asdict(self.split_decay)
+        if self.datasheet is not None:
+            out["datasheet"] = asdict(self.datasheet)
         if self.peak_table is not None:
             out["peak_table"] = asdict(self.peak_table)
         if current_mode is not None:

@@ -50,21 +50,8 @@ import numpy as np
 
 from ..config import Drive
 from .bridge import fast_switch_voltage
-
-#: Temperature coefficient of resistance of annealed copper at 20 degC, 1/K (IEC 60028).
-COPPER_ALPHA = 0.00393
-
-
-def copper_resistance(r_ref, t_ref, temp, alpha: float = COPPER_ALPHA):
-    """Resistance in ohm at ``temp`` of copper measuring ``r_ref`` at ``t_ref`` (degC).
-
-    IEC 60028 makes the resistance linear in temperature about 20 degC,
-    ``R(T) = R_20 (1 + alpha_20 (T - 20))``, so with ``alpha`` the 20 degC coefficient
-    ``R(T) = R_ref (1 + alpha (T - 20)) / (1 + alpha (T_ref - 20))``; for ``T_ref = 20``
-    this is ``R_ref (1 + alpha (T - T_ref))``.
-    """
-    temp = np.asarray(temp, float)
-    return np.asarray(r_ref, float) * (1.0 + alpha * (temp - 20.0)) / (1.0 + alpha * (t_ref - 20.0))
+from ..copper import COPPER_ALPHA, copper_resistance  # noqa: F401  (re-exported)
+from . import flux
 
 
 @dataclass(frozen=True)
@@ -83,7 +70,7 @@ class Loop:
     r_on: np.ndarray
     r_off: np.ndarray
     v_off: np.ndarray
-    inductance: np.ndarray
+    inductance: np.ndarray   # or a flux.FluxCoil: a saturating coil at these points
     r_coil: np.ndarray
     supply: np.ndarray
     bypassed: bool = False
@@ -181,10 +168,13 @@ def loop(drive: Drive, supply, coil_temp, r_factor=1.0, l_factor=1.0, path: str 
     # With a moving armature the switched segments that use Loop.inductance (the PWM hold,
     # the release until the armature lets go) all have it seated: the closed inductance.
     base = coil.inductance if drive.armature is None else drive.armature.inductance_closed
-    inductance = base * np.asarray(l_factor, float)
+    curve = coil.flux_current and flux.curve(coil.flux_current, coil.flux_linkage)
+    inductance = (1.0 if curve else base) * np.asarray(l_factor, float)
     arrays = np.broadcast_arrays(supply, r_on, r_off, v_off, inductance, r_coil, v_diode, v_fast)
     # read-only broadcast views: no copies of scalars spread over many points
     supply, r_on, r_off, v_off, inductance, r_coil, v_diode, v_fast = arrays
+    if curve:   # a saturating coil: its curve, scaled by the tolerance (model.flux)
+        inductance = flux.FluxCoil(curve, inductance)
     return Loop(v_on=supply, r_on=r_on, r_off=r_off, v_off=v_off, inductance=inductance,
                 r_coil=r_coil, supply=supply, bypassed=bypassed, v_diode=v_diode, v_fast=v_fast,
                 bridge=kind)

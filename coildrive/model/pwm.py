@@ -19,6 +19,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .flux import FluxCoil, linear_orbit, orbit
 from .rl import decay_integrals, decay_time, rise_integrals
 
 
@@ -56,18 +57,19 @@ def pwm_steady_state(duty, frequency, v_on, r_on, r_off, v_off, inductance) -> P
     r_on : loop resistance while on, ohm
     r_off : loop resistance while freewheeling, ohm
     v_off : constant voltage opposing the current while freewheeling, V (> 0)
-    inductance : H
+    inductance : H, or a :class:`~coildrive.model.flux.FluxCoil` (a saturating coil: its
+        exact periodic orbit, :func:`coildrive.model.flux.orbit`)
     """
+    if isinstance(inductance, FluxCoil):
+        return _flux_steady_state(duty, frequency, v_on, r_on, r_off, v_off, inductance)
     duty, frequency, v_on, r_on, r_off, v_off, inductance = np.broadcast_arrays(
         *(np.asarray(x, float) for x in (duty, frequency, v_on, r_on, r_off, v_off, inductance)))
     period = 1.0 / frequency
     t_on = duty * period
     t_off = period - t_on
+    i_min_ccm, _ = linear_orbit(t_on, t_off, v_on, r_on, r_off, v_off, inductance)
     a = v_on / r_on
-    b = v_off / r_off
     e_on = np.exp(-t_on * r_on / inductance)
-    e_off = np.exp(-t_off * r_off / inductance)
-    i_min_ccm = ((a * (1.0 - e_on) + b) * e_off - b) / (1.0 - e_on * e_off)
     dcm = i_min_ccm <= 0.0
     i_min = np.where(dcm, 0.0, i_min_ccm)
     i_max = a + (i_min - a) * e_on
@@ -80,6 +82,28 @@ def pwm_steady_state(duty, frequency, v_on, r_on, r_off, v_off, inductance) -> P
     return PwmSteadyState(i_min=i_min, i_max=i_max, mean=mean, rms=rms, ripple=i_max - i_min,
                           dcm=dcm, conduction_off=conduction, period=period, charge_on=q_on,
                           square_on=s_on, charge_off=q_off, square_off=s_off)
+
+
+def _flux_steady_state(duty, frequency, v_on, r_on, r_off, v_off, coil: FluxCoil) -> PwmSteadyState:
+    """:func:`pwm_steady_state` of a saturating coil, from its exact orbit."""
+    duty, frequency = np.broadcast_arrays(np.asarray(duty, float), np.asarray(frequency, float))
+    period = 1.0 / frequency
+    t_on = duty * period
+    o = orbit(coil, t_on, period - t_on, v_on, r_on, r_off, v_off)
+    mean = (o.charge_on + o.charge_off) / period
+    rms = np.sqrt(np.maximum((o.square_on + o.square_off) / period, 0.0))
+    period = np.broadcast_to(period, np.shape(mean))
+    return PwmSteadyState(i_min=o.i_min, i_max=o.i_max, mean=mean, rms=rms,
+                          ripple=o.i_max - o.i_min, dcm=o.dcm, conduction_off=o.conduction_off,
+                          period=period, charge_on=o.charge_on, square_on=o.square_on,
+                          charge_off=o.charge_off, square_off=o.square_off)
+
+
+def _points(inductance):
+    """``(array to broadcast, rebuild)``: a FluxCoil broadcasts by its scale."""
+    if isinstance(inductance, FluxCoil):
+        return np.asarray(inductance.scale, float), inductance.with_scale
+    return inductance, lambda x: x
 
 
 def duty_for_mean_bisect(target, frequency, v_on, r_on, r_off, v_off, inductance,
@@ -125,10 +149,12 @@ def duty_for_mean(target, frequency, v_on, r_on, r_off, v_off, inductance, itera
     (optional, broadcast like the others) replaces the first estimate, e.g. the duty of a
     nearby point.
     """
+    inductance, coil = _points(inductance)
     arrays = np.broadcast_arrays(*(np.asarray(x, float) for x in
                                    (target, frequency, v_on, r_on, r_off, v_off, inductance)))
     shape = arrays[0].shape
     tgt, f, v, ron, roff, voff, ind = (np.array(a, dtype=float).ravel() for a in arrays)
+    ind = coil(ind)
     if start is not None:
         start = np.array(np.broadcast_to(np.asarray(start, float), shape), dtype=float).ravel()
     out = np.full(tgt.size, np.nan)

@@ -6,24 +6,34 @@ Every segment of a switched coil has the form ``i(t) = a + b * exp(-t / tau)``:
 * freewheel (decay): ``L di/dt = -(R i + V_off)`` -> ``a = -V_off/R``, ``b = i0 + V_off/R``;
   the freewheel diode blocks reverse current, so a decay ends when ``i`` reaches zero.
 
-All functions broadcast over numpy arrays; units are A, V, ohm, H, s.
+All functions broadcast over numpy arrays; units are A, V, ohm, H, s. Where ``l`` is a
+:class:`~coildrive.model.flux.FluxCoil` (a saturating coil) the segment functions hand
+over to :mod:`coildrive.model.flux`, which solves the same segments by exact quadrature.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
+from . import flux
+from .flux import FluxCoil
+
 ArrayLike = "float | np.ndarray"
 
 
 def rise_current(t, i0, v, r, l):
     """Current in A after ``t`` s of switch-on from ``i0`` A: ``V/R + (i0 - V/R) e^(-t/tau)``."""
+    if isinstance(l, FluxCoil):
+        return flux.current(l, t, i0, v, r)
     a = np.asarray(v, float) / r
     return a + (i0 - a) * np.exp(-np.asarray(t, float) * r / l)
 
 
 def rise_time(i1, i0, v, r, l):
     """Time in s for a rise from ``i0`` to ``i1`` A; ``inf`` where ``i1 >= V/R`` (unreachable)."""
+    if isinstance(l, FluxCoil):
+        i0, i1 = np.asarray(i0, float), np.asarray(i1, float)
+        return np.where(i1 <= i0, 0.0, flux.time(l, i0, np.maximum(i1, i0), v, r))
     a = np.asarray(v, float) / np.asarray(r, float)
     i1 = np.asarray(i1, float)
     i0 = np.asarray(i0, float)
@@ -35,6 +45,8 @@ def rise_time(i1, i0, v, r, l):
 
 def decay_current(t, i0, r, v_off, l):
     """Current in A after ``t`` s of freewheeling from ``i0`` A, held at zero once it gets there."""
+    if isinstance(l, FluxCoil):
+        return np.maximum(flux.current(l, t, i0, -np.asarray(v_off, float), r), 0.0)
     b = np.asarray(v_off, float) / r
     i = (i0 + b) * np.exp(-np.asarray(t, float) * r / l) - b
     return np.maximum(i, 0.0)
@@ -45,6 +57,9 @@ def decay_time(i1, i0, r, v_off, l):
 
     ``V_off`` must be positive when ``i1`` is zero (a diode drop always is).
     """
+    if isinstance(l, FluxCoil):
+        i0 = np.asarray(i0, float)
+        return flux.time(l, i0, np.minimum(np.asarray(i1, float), i0), -np.asarray(v_off, float), r)
     b = np.asarray(v_off, float) / np.asarray(r, float)
     i0 = np.asarray(i0, float)
     i1 = np.minimum(np.asarray(i1, float), i0)
@@ -70,11 +85,18 @@ def segment_integrals(a, b, tau, t):
 
 def rise_integrals(t, i0, v, r, l):
     """``(int i dt, int i^2 dt)`` over a switch-on segment of length ``t``."""
+    if isinstance(l, FluxCoil):
+        end = flux.current(l, t, i0, v, r)
+        return flux.integral(l, i0, end, v, r, 1), flux.integral(l, i0, end, v, r, 2)
     a = np.asarray(v, float) / r
     return segment_integrals(a, i0 - a, np.asarray(l, float) / r, t)
 
 
 def decay_integrals(t, i0, r, v_off, l):
     """``(int i dt, int i^2 dt)`` over a freewheel segment of length ``t`` (must end at i >= 0)."""
+    if isinstance(l, FluxCoil):
+        v = -np.asarray(v_off, float)
+        end = np.maximum(flux.current(l, t, i0, v, r), 0.0)
+        return flux.integral(l, i0, end, v, r, 1), flux.integral(l, i0, end, v, r, 2)
     b = np.asarray(v_off, float) / r
     return segment_integrals(-b, i0 + b, np.asarray(l, float) / r, t)

@@ -22,6 +22,7 @@ import numpy as np
 
 from ..config import Drive
 from .circuit import full_bridge, loop, split_decay
+from .flux import FluxCoil
 from .rl import decay_current, decay_time, rise_current
 from .topology import coil_voltage, sense_leg_drop, topology_of
 
@@ -97,6 +98,9 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
         return armature_actuation(drive, supply, coil_temp, peak_time, duty, frequency,
                                   hold_time, r_factor, l_factor, points, label)
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
+    if isinstance(lp.inductance, FluxCoil):   # a saturating coil: its own sampling
+        return _flux_actuation(drive, lp, supply, peak_time, duty, frequency, hold_time,
+                               points, label)
     v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
     if split_decay(drive):
         return _split_actuation(drive, lp, supply, coil_temp, peak_time, duty, frequency,
@@ -118,6 +122,21 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
     fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") if full_bridge(drive) else lp
     return release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_offedge, i_off, big, label,
                             release_lp=fast)
+
+
+def _flux_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: float,
+                    frequency: float, hold_time: float, points: int, label: str) -> Waveform:
+    """:func:`actuation` of a saturating coil (:mod:`coildrive.model.flux_waveform`)."""
+    from .flux_waveform import actuation as flux_samples
+
+    ts, cs, ons, t_cut, i_cut, tz = flux_samples(drive, lp, peak_time, duty, frequency,
+                                                 hold_time, points)
+    time = np.concatenate(ts)
+    current = np.concatenate(cs)
+    on = np.concatenate(ons).astype(np.int8)
+    v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
+    events = {"on": 0.0, "hold": peak_time, "off": t_cut, "zero": t_cut + tz}
+    return Waveform(time, current, on, v_sw, sense, events, label)
 
 
 def peak_samples(peak_time: float, v: float, r_on: float, ind: float, big: int,

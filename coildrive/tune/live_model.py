@@ -81,6 +81,7 @@ def hold_figures(drive: Drive, point: BenchPoint, duty, frequency: float) -> Hol
     :mod:`coildrive.model.pwm`; the force current of
     :func:`coildrive.model.armature.hold_force_current`)."""
     from ..model.circuit import loop
+    from ..model.flux import incremental_at
     from ..model.pwm import pwm_steady_state
 
     duty = np.atleast_1d(np.asarray(duty, float))
@@ -92,7 +93,7 @@ def hold_figures(drive: Drive, point: BenchPoint, duty, frequency: float) -> Hol
 
         p = params_from_loop(drive.armature, lp, 1.0)
         force, _ = hold_force_current(p, ss.i_min, ss.rms, ss.period)
-    tau = lp.inductance / (duty * lp.r_on + (1.0 - duty) * lp.r_off)
+    tau = incremental_at(lp.inductance, ss.mean) / (duty * lp.r_on + (1.0 - duty) * lp.r_off)
     return HoldFigures(duty, np.asarray(force, float), np.asarray(ss.mean, float),
                        np.asarray(ss.ripple, float), np.asarray(tau, float))
 

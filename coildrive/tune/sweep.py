@@ -638,6 +638,11 @@ def tune(drive: Drive, options: TuneOptions | None = None) -> TuneResult:
         raise InputError(drive.source, "hold.regulation", "coildrive tune sweeps a fixed or supply-table "
                          "compare; a closed-loop hold holds its set-point at every corner: set "
                          "hold.current and run coildrive design")
+    if drive.coil.flux_current:
+        raise InputError(drive.source, "coil.flux_current", "coildrive tune does not support a "
+                         "flux-linkage curve yet (its sweep would solve ~10^5 exact orbits): tune "
+                         "with coil.inductance at the hold current's incremental value, then design "
+                         "with the curve")
     t0 = time.perf_counter()
     grid = corner_grid(drive)
     f_lo, f_hi, f_src = frequency_range(drive, options)

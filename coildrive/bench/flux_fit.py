@@ -1,0 +1,169 @@
+"""The coil's flux-linkage curve from the switch-on rise in a capture.
+
+From ``v = R i + dpsi/dt``, the flux linkage a coil has built up since its switch-on at
+``t_on`` is
+
+    psi(t) = integral_{t_on}^{t} (V - R_loop i) dt
+
+(the trapezoid rule over the samples, from zero current at the switch-on moment).
+``R_loop`` is the whole loop while the switch is on (coil, switch, sense resistor):
+the rise must run long enough for the current to settle, where ``dpsi/dt = 0`` and so
+``R_loop = V / i_settled``; or the coil's resistance at the capture's temperature is
+given (``resistance``), and the board's switch and sense resistances are added. While
+the current rises it is a one-to-one function of time, so each sample gives a point
+``(i, psi)``; the table is read off them at evenly spaced currents up to 98 % of the
+settled current (above it the current barely moves and each ADC code spans a long stretch
+of flux), as the median over the actuations. The armature must not move during the
+rise (block it open for the open curve; capture a seated coil for the seated one).
+
+The residual is the RMS distance of the samples' flux from the table's interpolant
+(PCHIP, as the design uses it), relative to the largest flux; the current range the
+table covers is reported, and above it the design extends the curve straight.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass
+
+import numpy as np
+
+from ..config import Board
+from ..errors import InputError
+from ..units import format_si
+from .analysis import Analysis, analyse
+from .capture_file import Capture
+
+#: Points of the fitted table (zero included).
+TABLE_POINTS = 12
+#: Share of the settled current the table reaches.
+TOP_FRACTION = 0.98
+#: The last share of the peak over which the current must be flat (within SETTLED_SPREAD)
+#: for the loop resistance to come from the settled current.
+SETTLED_TAIL = 0.1
+SETTLED_SPREAD = 0.005
+
+
+@dataclass(frozen=True)
+class FluxFit:
+    """The fitted curve: currents A and flux linkages Wb (from 0, rising), the coil's
+    resistance ohm (the loop less switch and sense) at ``coil_temp_c``, how it was found,
+    the relative RMS residual, the current range covered and the actuations used."""
+
+    current_a: tuple[float, ...]
+    flux_wb: tuple[float, ...]
+    resistance_ohm: float
+    loop_resistance_ohm: float
+    resistance_from: str
+    supply_v: float
+    coil_temp_c: float
+    residual: float
+    actuations: int
+    notes: tuple[str, ...] = ()
+
+    def to_dict(self) -> dict:
+        out = asdict(self)
+        out["notes"] = list(self.notes)
+        out["coil_section"] = self.coil_section()
+        return out
+
+    def coil_section(self) -> str:
+        """A ``[coil]`` section with the curve, ready to paste into a drive file (TOML)."""
+        cur = ", ".join(f"{x:.6g}" for x in self.current_a)
+        flux = ", ".join(f'"{x * 1e3:.6g} mWb"' for x in self.flux_wb)
+        return "\n".join([
+            "[coil]",
+            f'resistance = "{self.resistance_ohm:.5g} ohm"    # {self.resistance_from}',
+            f'reference_temp = "{self.coil_temp_c:.4g} degC"',
+            f"# flux linkage from the rise at {self.supply_v:.4g} V over {self.actuations} "
+            f"actuation(s), residual {self.residual:.2%}; covers 0..{self.current_a[-1]:.4g} A "
+            "(above it the design extends the curve straight)",
+            f"flux_current = [{cur}]",
+            f"flux_linkage = [{flux}]",
+            "# resistance_tolerance, inductance_tolerance: keep your part's figures",
+        ]) + "\n"
+
+
+def fit_flux(capture: Capture, board: Board, supply: float, coil_temp: float | None = None,
+             resistance: float | None = None, analysis: Analysis | None = None,
+             points: int = TABLE_POINTS) -> FluxFit:
+    """The flux-linkage curve of the coil in ``capture`` (see the module docstring).
+
+    ``supply`` V during the capture; ``coil_temp`` degC (``None``: 20 degC, noted);
+    ``resistance`` the coil's ohm at that temperature (``None``: from the settled
+    current at the end of each peak).
+    """
+    from .fit import coil_temperature
+
+    if not (math.isfinite(supply) and supply > 0):
+        raise InputError("--supply", "", f"{supply!r} must be a voltage above zero")
+    if resistance is not None and not (math.isfinite(resistance) and resistance > 0):
+        raise InputError("--resistance", "", f"{resistance!r} must be a resistance above zero")
+    meta = capture.meta
+    fs, apc = meta.sample_rate_hz, meta.amps_per_code
+    if analysis is None:
+        analysis = analyse(capture)
+    r_extra = board.switch.on_resistance + board.sense.resistance
+    rises = []
+    notes: list[str] = []
+    idx = capture.index
+    for act in analysis.actuations:
+        end_index = act.peak_end_index if act.peak_end_index is not None else act.off_index
+        if act.partial is not None or end_index is None or act.seated_time_s is not None:
+            notes.append(f"actuation {act.number}: "
+                         + ("the armature moves in the rise" if act.seated_time_s is not None
+                            else "no whole peak") + ", not used")
+            continue
+        a = int(np.searchsorted(idx, act.on_index))
+        b = int(np.searchsorted(idx, end_index))
+        t = np.concatenate([[act.on_at_s], idx[a:b] / fs])
+        i = np.concatenate([[0.0], np.maximum((capture.code[a:b].astype(float) - meta.zero_code + 0.5) * apc, 0.0)])
+        tail = i[-max(5, int(SETTLED_TAIL * i.size)):]
+        settled = float(np.mean(tail))
+        if resistance is None:
+            if not (settled > 0 and np.ptp(tail) <= SETTLED_SPREAD * settled):
+                notes.append(f"actuation {act.number}: the current does not settle by the end of "
+                             "the peak, not used (give the coil's resistance, or a longer peak)")
+                continue
+            r_loop = supply / settled
+        else:
+            r_loop = resistance + r_extra
+        psi = np.concatenate([[0.0], np.cumsum(0.5 * (2 * supply - r_loop * (i[1:] + i[:-1])) * np.diff(t))])
+        rises.append((i, psi, r_loop, settled))
+    if not rises:
+        raise InputError(capture.source, "", "no actuation with a usable rise for a flux-linkage "
+                         "curve" + (f" ({'; '.join(notes)})" if notes else ""))
+    top = TOP_FRACTION * min(min(s, supply / r) for _, _, r, s in rises)
+    table_i = np.linspace(0.0, top, points)
+    tables = []
+    for i, psi, _, _ in rises:
+        mono = np.maximum.accumulate(i)
+        keep = np.concatenate([[True], np.diff(mono) > 0])
+        tables.append(np.interp(table_i, mono[keep], psi[keep]))
+    table_psi = np.median(np.array(tables), axis=0)
+    if not np.all(np.diff(table_psi) > 0):
+        raise InputError(capture.source, "", "the flux linkage read off the rise does not rise with "
+                         "the current (noise, an eddy-current hump or a moving armature): not a curve")
+    from ..model.flux import FluxCurve
+
+    curve = FluxCurve(table_i, table_psi)
+    errs = [psi[i <= top] - curve.psi(i[i <= top]) for i, psi, _, _ in rises]
+    residual = float(np.sqrt(np.mean(np.concatenate(errs) ** 2)) / table_psi[-1])
+    r_loop = float(np.median([r for _, _, r, _ in rises]))
+    r_coil = r_loop - r_extra
+    if r_coil <= 0:
+        raise InputError(capture.source, "", f"the loop resistance {r_loop:.4g} ohm is below the board's "
+                         f"switch + sense resistance ({r_extra:.4g} ohm): wrong supply or sense scaling?")
+    temp, note = coil_temperature(coil_temp)
+    notes += [note] if note else []
+    how = ("given (--resistance)" if resistance is not None else
+           f"from the settled current: {supply:.4g} V / loop, less switch + sense {r_extra:.3g} ohm")
+    return FluxFit(tuple(float(x) for x in table_i), tuple(float(x) for x in table_psi), r_coil, r_loop,
+                   how, float(supply), temp, residual, len(rises), tuple(notes))
+
+
+def flux_text(fit: FluxFit) -> str:
+    """One status line: what was fitted."""
+    return (f"flux-linkage curve from {fit.actuations} actuation(s) at {fit.supply_v:.4g} V: "
+            f"0..{fit.current_a[-1]:.4g} A, up to {format_si(fit.flux_wb[-1], 'Wb')}, "
+            f"residual {fit.residual:.2%}; loop {fit.loop_resistance_ohm:.4g} ohm")

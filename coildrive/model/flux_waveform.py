@@ -1,0 +1,105 @@
+"""One actuation of a saturating coil as a time series (``simulate``, the emulator, plots).
+
+The same schedule as :mod:`coildrive.model.waveform` -- full on from zero for the peak,
+whole PWM periods of hold ending at the top of the last on-time, then the free decay to
+zero -- with the flux-linkage curve of :mod:`coildrive.model.flux`. At one operating
+point the two segment kinds are tabulated once (:class:`Track`): the exact time from
+zero current along the on-loop, and from the top along the off-loop, at 20,000
+currents; a current after a time is read back from the table. The hold's per-period
+start currents follow by the same scalar recurrence as the linear coil's.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..config import Drive
+from . import flux
+from .circuit import Loop
+
+#: Currents tabulated per segment kind.
+GRID = 20_000
+
+
+class Track:
+    """Both segment kinds of one operating point, tabulated: on (``v_on`` V through
+    ``r_on``) and off (against ``v_off`` V through ``r_off``), for currents up to
+    ``top`` A (and up to the on-loop's asymptote ``v_on / r_on``)."""
+
+    def __init__(self, coil: flux.FluxCoil, v_on: float, r_on: float, r_off: float,
+                 v_off: float, top: float):
+        a = v_on / r_on
+        near = a * (1.0 - np.logspace(-3, -13, 400))           # toward the asymptote
+        self.i_on = np.concatenate([np.linspace(0.0, near[0], GRID, endpoint=False), near])
+        dt = flux.time(coil, self.i_on[:-1], self.i_on[1:], v_on, r_on)
+        self.t_on = np.concatenate([[0.0], np.cumsum(dt)])
+        hi = max(top, a) * 1.001
+        self.i_off = np.linspace(0.0, hi, GRID + 1)
+        dt = flux.time(coil, self.i_off[1:], self.i_off[:-1], -v_off, r_off)
+        # time to fall from ``hi`` to each current (falling as the current rises)
+        self.t_off = np.concatenate([np.cumsum(dt[::-1])[::-1], [0.0]])
+
+    def rise(self, i0, t):
+        """Current A after ``t`` s on from ``i0`` A."""
+        start = np.interp(i0, self.i_on, self.t_on)
+        return np.interp(start + t, self.t_on, self.i_on)
+
+    def decay(self, i0, t):
+        """Current A after ``t`` s off from ``i0`` A (zero once it gets there)."""
+        start = np.interp(i0, self.i_off, self.t_off)
+        return np.interp(start + t, self.t_off[::-1], self.i_off[::-1])
+
+    def to_zero(self, i0):
+        """s of decay from ``i0`` A to zero."""
+        return self.t_off[0] - np.interp(i0, self.i_off, self.t_off)
+
+
+def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: float,
+              hold_time: float, points: int):
+    """The sample pieces of one actuation: ``(time, current, switch_on, t_off, i_off)``
+    (s, A, 0/1 arrays; the final turn-off time s and current A), through the loop ``lp``
+    of one operating point whose inductance is a :class:`~coildrive.model.flux.FluxCoil`."""
+    coil = lp.inductance
+    coil = coil.with_scale(float(np.ravel(coil.scale)[0]))
+    v, r_on, r_off, v_off = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off))
+    peak_end = float(flux.current(coil, peak_time, 0.0, v, r_on))
+    tr = Track(coil, v, r_on, r_off, v_off, peak_end)
+    big = 40 * points
+    tp = np.linspace(0.0, peak_time, big + 1)
+    ts, cs, ons = [tp], [tr.rise(0.0, tp)], [np.ones_like(tp)]
+    cs[0][-1] = peak_end
+    period = 1.0 / frequency
+    n = max(1, int(round(hold_time * frequency)))
+    t_on, t_off = duty * period, (1.0 - duty) * period
+    starts = np.empty(n)
+    i = peak_end
+    for k in range(n):
+        starts[k] = i
+        top = float(tr.rise(i, t_on))
+        i = float(tr.decay(top, t_off)) if k < n - 1 else top
+    frac = np.linspace(0.0, 1.0, points + 1)
+    t0 = peak_time + np.arange(n)[:, None] * period
+    on_t = np.broadcast_to(frac[None, :] * t_on, (n, points + 1))
+    on_i = tr.rise(starts[:, None], on_t)
+    tops = on_i[:, -1]
+    off_t = np.broadcast_to(frac[None, 1:-1] * t_off, (n, points - 1))
+    t_zero = tr.to_zero(tops)
+    extra = np.where(t_zero < t_off, t_zero, t_off * (points - 0.5) / points)
+    off_t = np.sort(np.concatenate([off_t, extra[:, None]], axis=1), axis=1)
+    off_i = tr.decay(tops[:, None], off_t)
+    period_t = np.concatenate([t0 + on_t, t0 + t_on + off_t], axis=1)
+    period_i = np.concatenate([on_i, off_i], axis=1)
+    period_on = np.concatenate([np.ones_like(on_t), np.zeros_like(off_t)], axis=1)
+    keep = np.ones_like(period_t, dtype=bool)
+    keep[-1, on_t.shape[1]:] = False
+    ts.append(period_t[keep][1:])
+    cs.append(period_i[keep][1:])
+    ons.append(period_on[keep][1:])
+    t_cut = peak_time + (n - 1) * period + t_on
+    i_cut = float(tops[-1])
+    tz = float(tr.to_zero(i_cut))
+    td = np.linspace(0.0, tz, big + 1)[1:]
+    ts.append(t_cut + td)
+    cs.append(tr.decay(i_cut, td))
+    ons.append(np.zeros_like(td))
+    return ts, cs, ons, t_cut, i_cut, tz
