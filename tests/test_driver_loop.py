@@ -14,7 +14,7 @@ from __future__ import annotations
 import pytest
 
 from coildrive.bench.messages import EventKind
-from driver_harness import conversions_per_tick, example_design, run_host
+from driver_harness import conversions_per_tick, example_design, healthy_slew, run_host
 
 pytestmark = pytest.mark.compiler
 
@@ -55,7 +55,10 @@ def test_loop_compare_matches_the_header_arithmetic(tmp_path, example, edit):
     # back: the integrator must not have wound up at either end
     steps = [(sp, 3), (sp - 3, 20), (sp + 2, 20), (1 + d.adc.open_load_code, 4), (oc - 1, 30),
              (sp, 30), (d.adc.open_load_code, 2), (sp + 1, 10)]
-    script = [("supply", nominal), ("level", sp + 40), ("run", 2), ("on", 0), ("run", d.pull_in.peak_ticks + 1)]
+    # the peak: the harness coil climbing at a healthy rate (the shorted-turns check
+    # judges the rise from switch-on) toward sp + 40 codes, then the hold's samples
+    script = [("supply", nominal), ("full", sp + 40), ("slew", healthy_slew(d)), ("run", 2), ("on", 0),
+              ("run", d.pull_in.peak_ticks + 1)]
     for code, ticks in steps:
         script += [("level", code), ("run", ticks)]
     run = run_host(tmp_path, d, script)
