@@ -84,3 +84,50 @@ def test_cli_prints_a_coil_section_and_json(tmp_path):
     ok = run_cli("fit", str(short), "--board", "fast-32bit-clamp", "--supply", "24", "--flux-curve",
                  "--resistance", "22 ohm", "--coil-temp", "20")
     assert ok.returncode == 0, ok.stderr
+
+
+def test_plot_data_are_the_fit_and_the_files_coil(tmp_path):
+    from coildrive.bench.flux_plot import flux_plot_data
+
+    d = load_drive(EXAMPLE)
+    fit = fit_flux(_capture(d), d.board, 24.0, 20.0)
+    fitted = flux.FluxCurve(fit.current_a, fit.flux_wb)
+    # beside a linear coil's file: its inductance as a constant
+    lin = load_drive(EXAMPLES / "demo-valve.toml").coil
+    data = flux_plot_data(fit, lin)
+    i = data.current_a
+    assert i[0] == 0.0 and i[-1] > fit.current_a[-1]          # runs past the measured range
+    assert data.measured_range_a == (0.0, fit.current_a[-1])
+    assert np.allclose(data.fitted.flux_wb, fitted.psi(i))
+    assert np.allclose(data.fitted.incremental_h, fitted.incremental(i))
+    # dpsi/di of the plotted psi: the finite difference of the plotted curve itself
+    mid = 0.5 * (i[1:] + i[:-1])
+    assert np.allclose(np.diff(data.fitted.flux_wb) / np.diff(i), fitted.incremental(mid), rtol=1e-3)
+    assert data.reference.flux_wb is None and np.all(data.reference.incremental_h == lin.inductance)
+    # the measured points are the rises' own: on the fitted curve within the residual
+    assert len(data.measured) == fit.actuations
+    for mi, mpsi in data.measured:
+        inside = mi <= fit.current_a[-1]
+        assert np.all(np.abs(mpsi[inside] - fitted.psi(mi[inside])) <= 0.02 * fit.flux_wb[-1])
+    # beside a file with a curve: that curve and its slope
+    data = flux_plot_data(fit, d.coil)
+    known = flux.curve(d.coil.flux_current, d.coil.flux_linkage)
+    assert np.allclose(data.reference.flux_wb, known.psi(data.current_a))
+    assert np.allclose(data.reference.incremental_h, known.incremental(data.current_a))
+
+
+def test_cli_plot_writes_a_png(tmp_path):
+    d = load_drive(EXAMPLE)
+    path = tmp_path / "rise.cdcap"
+    write_capture(path, _capture(d))
+    out = tmp_path / "curve.png"
+    args = ("fit", str(path), "--board", "fast-32bit-clamp", "--supply", "24", "--coil-temp", "20",
+            "--flux-curve")
+    plain = run_cli(*args)
+    r = run_cli(*args, "--plot", str(out), "--drive", str(EXAMPLES / "demo-valve.toml"))
+    assert r.returncode == 0, r.stderr
+    assert out.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n" and f"wrote plot {out}" in r.stderr
+    assert r.stdout == plain.stdout                              # the [coil] section unchanged
+    bad = run_cli("fit", str(path), "--board", "fast-32bit-clamp", "--supply", "24",
+                  "--plot", str(tmp_path / "no.png"))
+    assert bad.returncode == 2 and "--plot" in bad.stderr and not (tmp_path / "no.png").exists()

@@ -24,7 +24,7 @@ table covers is reported, and above it the design extends the curve straight.
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, field
 
 import numpy as np
 
@@ -42,13 +42,17 @@ TOP_FRACTION = 0.98
 #: for the loop resistance to come from the settled current.
 SETTLED_TAIL = 0.1
 SETTLED_SPREAD = 0.005
+#: Most measured points kept per rise for the plot.
+PLOT_SAMPLES = 400
 
 
 @dataclass(frozen=True)
 class FluxFit:
     """The fitted curve: currents A and flux linkages Wb (from 0, rising), the coil's
     resistance ohm (the loop less switch and sense) at ``coil_temp_c``, how it was found,
-    the relative RMS residual, the current range covered and the actuations used."""
+    the relative RMS residual, the current range covered and the actuations used.
+    ``samples`` holds each used rise's measured ``(current A, flux Wb)`` points, thinned
+    to at most :data:`PLOT_SAMPLES` each (for ``--plot``; not in the JSON)."""
 
     current_a: tuple[float, ...]
     flux_wb: tuple[float, ...]
@@ -60,9 +64,11 @@ class FluxFit:
     residual: float
     actuations: int
     notes: tuple[str, ...] = ()
+    samples: tuple[tuple[np.ndarray, np.ndarray], ...] = field(default=(), repr=False, compare=False)
 
     def to_dict(self) -> dict:
         out = asdict(self)
+        del out["samples"]
         out["notes"] = list(self.notes)
         out["coil_section"] = self.coil_section()
         return out
@@ -159,7 +165,14 @@ def fit_flux(capture: Capture, board: Board, supply: float, coil_temp: float | N
     how = ("given (--resistance)" if resistance is not None else
            f"from the settled current: {supply:.4g} V / loop, less switch + sense {r_extra:.3g} ohm")
     return FluxFit(tuple(float(x) for x in table_i), tuple(float(x) for x in table_psi), r_coil, r_loop,
-                   how, float(supply), temp, residual, len(rises), tuple(notes))
+                   how, float(supply), temp, residual, len(rises), tuple(notes),
+                   tuple(_thin(i, psi) for i, psi, _, _ in rises))
+
+
+def _thin(i: np.ndarray, psi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """At most :data:`PLOT_SAMPLES` evenly picked points of one rise (both ends kept)."""
+    pick = np.unique(np.linspace(0, i.size - 1, min(i.size, PLOT_SAMPLES)).round().astype(int))
+    return i[pick].copy(), psi[pick].copy()
 
 
 def flux_text(fit: FluxFit) -> str:

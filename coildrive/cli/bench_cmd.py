@@ -166,6 +166,8 @@ def fit_command(
     as_json: bool = typer.Option(False, "--json", help="Print the fit as one JSON document on stdout."),
     flux_curve: bool = typer.Option(False, "--flux-curve", help="Fit the coil's flux-linkage curve (a saturating coil) instead of one inductance; the rise must settle, or give --resistance (docs/coil-model.md)."),
     resistance: Optional[str] = typer.Option(None, "--resistance", help='With --flux-curve: the coil\'s resistance at the capture\'s temperature, e.g. "22 ohm" (default: from the settled current).'),
+    plot: Optional[Path] = typer.Option(None, "--plot", help="With --flux-curve: write a PNG of the fitted flux linkage and incremental inductance against current, with the measured points and range."),
+    drive: Optional[Path] = typer.Option(None, "--drive", help="With --plot: a drive file whose coil (its inductance, or its curve) the plot shows beside the fit."),
 ) -> None:
     """Fit the coil's R and L (with --flux-curve: its flux-linkage curve) from the rise before the armature moves; print a \\[coil] section."""
     from ..bench.analysis import analyse
@@ -186,10 +188,24 @@ def fit_command(
     r = _quantity(resistance, "resistance", "--resistance")
     if r is not None and not flux_curve:
         raise InputError("--resistance", "", "is for --flux-curve (the plain fit finds R itself)")
+    if plot is not None and not flux_curve:
+        raise InputError("--plot", "", "is for --flux-curve (it draws the flux-linkage curve)")
+    if drive is not None and plot is None:
+        raise InputError("--drive", "", "is for --plot (the plot shows the drive file's coil beside the fit)")
     if flux_curve:
         from ..bench.flux_fit import fit_flux, flux_text
 
+        reference = None
+        if drive is not None:
+            from ..config import load_drive
+
+            reference = load_drive(drive).coil
         curve = fit_flux(cap, brd, v, t, r, analyse(cap))
+        if plot is not None:
+            from ..bench.flux_plot import flux_plot_data, plot_flux
+
+            write_atomic(plot, plot_flux(flux_plot_data(curve, reference, str(drive) if drive else "")))
+            status(f"wrote plot {plot}")
         if as_json:
             typer.echo(json.dumps(curve.to_dict(), indent=2))
             return
