@@ -67,16 +67,13 @@ class FluxFit:
     samples: tuple[tuple[np.ndarray, np.ndarray], ...] = field(default=(), repr=False, compare=False)
 
     def to_dict(self) -> dict:
-        out = asdict(self)
-        del out["samples"]
-        out["notes"] = list(self.notes)
+        out = fit_dict(self)
         out["coil_section"] = self.coil_section()
         return out
 
     def coil_section(self) -> str:
         """A ``[coil]`` section with the curve, ready to paste into a drive file (TOML)."""
-        cur = ", ".join(f"{x:.6g}" for x in self.current_a)
-        flux = ", ".join(f'"{x * 1e3:.6g} mWb"' for x in self.flux_wb)
+        cur, flux = table_text(self.current_a, self.flux_wb)
         return "\n".join([
             "[coil]",
             f'resistance = "{self.resistance_ohm:.5g} ohm"    # {self.resistance_from}',
@@ -124,14 +121,13 @@ def fit_flux(capture: Capture, board: Board, supply: float, coil_temp: float | N
         b = int(np.searchsorted(idx, end_index))
         t = np.concatenate([[act.on_at_s], idx[a:b] / fs])
         i = np.concatenate([[0.0], np.maximum((capture.code[a:b].astype(float) - meta.zero_code + 0.5) * apc, 0.0)])
-        tail = i[-max(5, int(SETTLED_TAIL * i.size)):]
-        settled = float(np.mean(tail))
+        settled = float(np.mean(i[-_tail(i.size):]))
         if resistance is None:
-            if not (settled > 0 and np.ptp(tail) <= SETTLED_SPREAD * settled):
+            r_loop = settled_loop_resistance(i, supply)
+            if r_loop is None:
                 notes.append(f"actuation {act.number}: the current does not settle by the end of "
                              "the peak, not used (give the coil's resistance, or a longer peak)")
                 continue
-            r_loop = supply / settled
         else:
             r_loop = resistance + r_extra
         psi = np.concatenate([[0.0], np.cumsum(0.5 * (2 * supply - r_loop * (i[1:] + i[:-1])) * np.diff(t))])
@@ -140,21 +136,10 @@ def fit_flux(capture: Capture, board: Board, supply: float, coil_temp: float | N
         raise InputError(capture.source, "", "no actuation with a usable rise for a flux-linkage "
                          "curve" + (f" ({'; '.join(notes)})" if notes else ""))
     top = TOP_FRACTION * min(min(s, supply / r) for _, _, r, s in rises)
-    table_i = np.linspace(0.0, top, points)
-    tables = []
-    for i, psi, _, _ in rises:
-        mono = np.maximum.accumulate(i)
-        keep = np.concatenate([[True], np.diff(mono) > 0])
-        tables.append(np.interp(table_i, mono[keep], psi[keep]))
-    table_psi = np.median(np.array(tables), axis=0)
+    table_i, table_psi, residual = median_table([(i, psi) for i, psi, _, _ in rises], top, points)
     if not np.all(np.diff(table_psi) > 0):
         raise InputError(capture.source, "", "the flux linkage read off the rise does not rise with "
                          "the current (noise, an eddy-current hump or a moving armature): not a curve")
-    from ..model.flux import FluxCurve
-
-    curve = FluxCurve(table_i, table_psi)
-    errs = [psi[i <= top] - curve.psi(i[i <= top]) for i, psi, _, _ in rises]
-    residual = float(np.sqrt(np.mean(np.concatenate(errs) ** 2)) / table_psi[-1])
     r_loop = float(np.median([r for _, _, r, _ in rises]))
     r_coil = r_loop - r_extra
     if r_coil <= 0:
@@ -166,10 +151,60 @@ def fit_flux(capture: Capture, board: Board, supply: float, coil_temp: float | N
            f"from the settled current: {supply:.4g} V / loop, less switch + sense {r_extra:.3g} ohm")
     return FluxFit(tuple(float(x) for x in table_i), tuple(float(x) for x in table_psi), r_coil, r_loop,
                    how, float(supply), temp, residual, len(rises), tuple(notes),
-                   tuple(_thin(i, psi) for i, psi, _, _ in rises))
+                   tuple(thin_samples(i, psi) for i, psi, _, _ in rises))
 
 
-def _thin(i: np.ndarray, psi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def median_table(pairs, top: float, points: int) -> tuple[np.ndarray, np.ndarray, float]:
+    """The table of ``points`` evenly spaced currents ``0..top`` A and the median over
+    ``pairs`` (each measured ``(current A, flux Wb)``, in time order: the current made
+    monotone first) of their flux there, and the RMS residual of the samples up to ``top``
+    against the table's PCHIP interpolant, relative to the largest flux."""
+    from ..model.flux import FluxCurve
+
+    table_i = np.linspace(0.0, top, points)
+    tables = []
+    for i, psi in pairs:
+        mono = np.maximum.accumulate(i)
+        keep = np.concatenate([[True], np.diff(mono) > 0])
+        tables.append(np.interp(table_i, mono[keep], psi[keep]))
+    table_psi = np.median(np.array(tables), axis=0)
+    if not np.all(np.diff(table_psi) > 0):
+        return table_i, table_psi, math.nan
+    curve = FluxCurve(table_i, table_psi)
+    errs = [psi[i <= top] - curve.psi(i[i <= top]) for i, psi in pairs]
+    return table_i, table_psi, float(np.sqrt(np.mean(np.concatenate(errs) ** 2)) / table_psi[-1])
+
+
+def table_text(current, flux) -> tuple[str, str]:
+    """A table's currents (A) and flux linkages (as ``"... mWb"`` strings) as TOML list items."""
+    return (", ".join(f"{x:.6g}" for x in current), ", ".join(f'"{x * 1e3:.6g} mWb"' for x in flux))
+
+
+def fit_dict(fit) -> dict:
+    """A fit dataclass as JSON-ready data, its plot ``samples`` left out."""
+    out = asdict(fit)
+    del out["samples"]
+    out["notes"] = list(fit.notes)
+    return out
+
+
+def _tail(n: int) -> int:
+    """Samples in the last :data:`SETTLED_TAIL` of a peak of ``n`` samples (at least 5)."""
+    return max(5, int(SETTLED_TAIL * n))
+
+
+def settled_loop_resistance(i: np.ndarray, supply: float) -> float | None:
+    """The loop resistance ohm from the settled current of a peak's samples ``i`` A at
+    ``supply`` V (``V / i``), or ``None`` when the last :data:`SETTLED_TAIL` of the peak is
+    not flat within :data:`SETTLED_SPREAD` (where ``dpsi/dt = 0`` the copper takes it all)."""
+    tail = i[-_tail(i.size):]
+    settled = float(np.mean(tail))
+    if not (settled > 0 and np.ptp(tail) <= SETTLED_SPREAD * settled):
+        return None
+    return supply / settled
+
+
+def thin_samples(i: np.ndarray, psi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """At most :data:`PLOT_SAMPLES` evenly picked points of one rise (both ends kept)."""
     pick = np.unique(np.linspace(0, i.size - 1, min(i.size, PLOT_SAMPLES)).round().astype(int))
     return i[pick].copy(), psi[pick].copy()

@@ -13,7 +13,7 @@ the fit); :func:`plot_flux` draws them (matplotlib on Agg, imported only for
 
 Both panels run a little past the measured range (above it the design extends the curve
 straight) and shade the current range the capture covered. A second fitted curve (the
-seated one) is drawn dashed when given. Units: A, Wb, H.
+seated one) is drawn dashed over its own measured range when given. Units: A, Wb, H.
 """
 
 from __future__ import annotations
@@ -45,7 +45,7 @@ class Curve:
 @dataclass(frozen=True)
 class FluxPlotData:
     """What :func:`plot_flux` draws. ``current_a`` is the grid (A, from 0); ``fitted`` the
-    fitted curve on it; ``seated`` the seated curve (or ``None``); ``reference`` the drive
+    fitted curve on it; ``seated`` the seated curve (or ``None``; NaN past its range); ``reference`` the drive
     file's coil (or ``None``); ``table_current_a``/``table_flux_wb`` the fitted table's
     points; ``measured`` each rise's measured ``(current A, flux Wb)`` points;
     ``measured_range_a`` the current range the capture covered (A)."""
@@ -75,8 +75,11 @@ def flux_plot_data(fit: FluxFit, reference: Coil | None = None, reference_name: 
         top = max(top, seated.current_a[-1])
     grid = np.linspace(0.0, top * (1.0 + PAST_RANGE), GRID_POINTS)
     fitted = _curve(f"fitted (rise at {fit.supply_v:.4g} V)", fit.current_a, fit.flux_wb, grid)
-    seated_curve = (None if seated is None else
-                    _curve("seated (from the release)", seated.current_a, seated.flux_wb, grid))
+    seated_curve = None
+    if seated is not None:   # drawn over its own measured range only (NaN past it)
+        c = _curve("seated (from the release)", seated.current_a, seated.flux_wb, grid)
+        past = grid > seated.current_a[-1]
+        seated_curve = Curve(c.label, np.where(past, np.nan, c.flux_wb), np.where(past, np.nan, c.incremental_h))
     ref = None
     if reference is not None:
         if reference.flux_current:

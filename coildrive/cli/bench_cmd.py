@@ -168,6 +168,7 @@ def fit_command(
     resistance: Optional[str] = typer.Option(None, "--resistance", help='With --flux-curve: the coil\'s resistance at the capture\'s temperature, e.g. "22 ohm" (default: from the settled current).'),
     plot: Optional[Path] = typer.Option(None, "--plot", help="With --flux-curve: write a PNG of the fitted flux linkage and incremental inductance against current, with the measured points and range."),
     drive: Optional[Path] = typer.Option(None, "--drive", help="With --plot: a drive file whose coil (its inductance, or its curve) the plot shows beside the fit."),
+    seated: bool = typer.Option(False, "--seated", help="With --flux-curve: also fit the seated coil's curve from each release (the sense must be in the coil path); printed for information and in the JSON (docs/coil-model.md)."),
 ) -> None:
     """Fit the coil's R and L (with --flux-curve: its flux-linkage curve) from the rise before the armature moves; print a \\[coil] section."""
     from ..bench.analysis import analyse
@@ -192,27 +193,10 @@ def fit_command(
         raise InputError("--plot", "", "is for --flux-curve (it draws the flux-linkage curve)")
     if drive is not None and plot is None:
         raise InputError("--drive", "", "is for --plot (the plot shows the drive file's coil beside the fit)")
+    if seated and not flux_curve:
+        raise InputError("--seated", "", "is for --flux-curve (it fits the seated coil's curve)")
     if flux_curve:
-        from ..bench.flux_fit import fit_flux, flux_text
-
-        reference = None
-        if drive is not None:
-            from ..config import load_drive
-
-            reference = load_drive(drive).coil
-        curve = fit_flux(cap, brd, v, t, r, analyse(cap))
-        if plot is not None:
-            from ..bench.flux_plot import flux_plot_data, plot_flux
-
-            write_atomic(plot, plot_flux(flux_plot_data(curve, reference, str(drive) if drive else "")))
-            status(f"wrote plot {plot}")
-        if as_json:
-            typer.echo(json.dumps(curve.to_dict(), indent=2))
-            return
-        for note in curve.notes:
-            status(f"note: {note}")
-        status(flux_text(curve))
-        typer.echo(curve.coil_section(), nl=False)
+        _fit_flux(cap, brd, v, t, r, as_json, plot, drive, seated)
         return
     result = fit_capture(cap, brd, v, t, analyse(cap))
     if as_json:
@@ -223,3 +207,59 @@ def fit_command(
     status(f"fitted {len(result.fits)} actuation(s) at {v:.4g} V: loop {result.loop_resistance_ohm:.4g} ohm "
            f"(switch {result.switch_resistance_ohm:.3g} + sense {result.sense_resistance_ohm:.3g} ohm)")
     typer.echo(result.coil_section(), nl=False)
+
+
+def _fit_flux(cap, brd, v: float, t, r, as_json: bool, plot: Optional[Path], drive: Optional[Path],
+              seated: bool) -> None:
+    """``fit --flux-curve``: the open curve (and with ``seated`` the seated one), printed,
+    as JSON, and plotted. With ``seated`` a capture whose rise gives no open curve (the
+    armature moves in it) still gives the seated curve."""
+    from ..bench.analysis import analyse
+    from ..bench.flux_fit import fit_flux, flux_text
+
+    reference = None
+    if drive is not None:
+        from ..config import load_drive
+
+        reference = load_drive(drive).coil
+    analysis = analyse(cap)
+    curve = seat = None
+    missing = None
+    try:
+        curve = fit_flux(cap, brd, v, t, r, analysis)
+    except InputError as err:
+        if not seated:
+            raise
+        missing = err
+    if seated:
+        from ..bench.release_fit import fit_seated
+
+        seat = fit_seated(cap, brd, v, t, r, analysis)
+    if plot is not None:
+        if curve is None:
+            raise missing
+        from ..bench.flux_plot import flux_plot_data, plot_flux
+
+        write_atomic(plot, plot_flux(flux_plot_data(curve, reference, str(drive) if drive else "", seat)))
+        status(f"wrote plot {plot}")
+    why = None if missing is None else f"no open curve in this capture: {missing.message}"
+    if as_json:
+        doc = curve.to_dict() if not seated else {
+            "open": None if curve is None else curve.to_dict(), "seated": seat.to_dict(),
+            "notes": [] if why is None else [why]}
+        typer.echo(json.dumps(doc, indent=2))
+        return
+    if curve is not None:
+        for note in curve.notes:
+            status(f"note: {note}")
+        status(flux_text(curve))
+        typer.echo(curve.coil_section(), nl=False)
+    else:
+        status(f"note: {why}")
+    if seat is not None:
+        from ..bench.release_fit import seated_text
+
+        for note in seat.notes:
+            status(f"note: {note}")
+        status(seated_text(seat))
+        typer.echo(seat.text(), nl=False)
