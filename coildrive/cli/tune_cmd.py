@@ -147,6 +147,7 @@ def _live(drive: Path, board: Optional[str], port: str, as_json: bool, header: O
     from ..bench.synth import adc_scaling
     from ..design import design
     from ..tune.live import LiveOptions, LiveTuner
+    from ..tune.sweep import check_tunable
 
     options = LiveOptions(
         repeats=3 if repeats is None else repeats,
@@ -164,16 +165,7 @@ def _live(drive: Path, board: Optional[str], port: str, as_json: bool, header: O
         from ..codegen.header import check_prefix
         check_prefix(prefix)
     d = load_drive(drive, board)
-    if d.hold.mode != "voltage":
-        raise InputError(d.source, "hold.mode", "live tuning steps the duty of a voltage-mode hold; for "
-                         'mode = "current" the thresholds come from coildrive design')
-    if d.hold.regulation == "closed_loop":
-        raise InputError(d.source, "hold.regulation", "live tuning steps a fixed compare; a closed-loop "
-                         "hold sets its own compare every PWM period: set hold.current and run "
-                         "coildrive design")
-    if d.coil.flux_current:
-        raise InputError(d.source, "coil.flux_current", "live tuning does not support a flux-linkage "
-                         "curve yet: tune with coil.inductance, then design with the curve")
+    check_tunable(d, "live tuning steps")
     des = design(d)
     if not des.ok:
         # a failing design (switch voltage, coil temperature, ...) must not drive hardware

@@ -624,6 +624,25 @@ def hold_toml(drive: Drive, c: Candidate) -> str:
 
 
 # --------------------------------------------------------------------------- the sweep
+def check_tunable(drive: Drive, who: str) -> None:
+    """Raise :class:`InputError` (naming the key) for a hold that tuning cannot step: a
+    current-mode hold, a closed-loop hold, a flux-linkage curve. ``who``: the start of the
+    message (``"coildrive tune sweeps"``, ``"live tuning steps"``); the offline sweep and
+    live tuning share these refusals."""
+    if drive.hold.mode != "voltage":
+        raise InputError(drive.source, "hold.mode", f"{who} the PWM of a voltage-mode hold; for "
+                         "mode = \"current\" run coildrive design (it sizes the thresholds)")
+    if drive.hold.regulation == "closed_loop":
+        raise InputError(drive.source, "hold.regulation", f"{who} a fixed or supply-table compare; "
+                         "a closed-loop hold sets its own compare every PWM period and holds its "
+                         "set-point at every corner: set hold.current and run coildrive design")
+    if drive.coil.flux_current:
+        raise InputError(drive.source, "coil.flux_current", "tuning does not support a flux-linkage "
+                         "curve yet (the sweep would solve ~10^5 exact orbits): tune with "
+                         "coil.inductance at the hold current's incremental value, then design "
+                         "with the curve")
+
+
 def tune(drive: Drive, options: TuneOptions | None = None) -> TuneResult:
     """Sweep the voltage-mode hold of ``drive`` (see the module docstring).
 
@@ -631,18 +650,7 @@ def tune(drive: Drive, options: TuneOptions | None = None) -> TuneResult:
     """
     options = options or TuneOptions()
     options.check()
-    if drive.hold.mode != "voltage":
-        raise InputError(drive.source, "hold.mode", "coildrive tune sweeps the PWM of a voltage-mode "
-                         "hold; for mode = \"current\" run coildrive design (it sizes the thresholds)")
-    if drive.hold.regulation == "closed_loop":
-        raise InputError(drive.source, "hold.regulation", "coildrive tune sweeps a fixed or supply-table "
-                         "compare; a closed-loop hold holds its set-point at every corner: set "
-                         "hold.current and run coildrive design")
-    if drive.coil.flux_current:
-        raise InputError(drive.source, "coil.flux_current", "coildrive tune does not support a "
-                         "flux-linkage curve yet (its sweep would solve ~10^5 exact orbits): tune "
-                         "with coil.inductance at the hold current's incremental value, then design "
-                         "with the curve")
+    check_tunable(drive, "coildrive tune sweeps")
     t0 = time.perf_counter()
     grid = corner_grid(drive)
     f_lo, f_hi, f_src = frequency_range(drive, options)
