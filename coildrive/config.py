@@ -96,6 +96,7 @@ BOUNDS: dict[str, tuple[float, float, str]] = {
     "supply.max": (0.5, 1000.0, "voltage"),
     "supply.capacitance": (1e-9, 10.0, "capacitance"),
     "supply.capacitor_voltage": (1.0, 10e3, "voltage"),
+    "supply.source_resistance": (100e-6, 100.0, "resistance"),
     "ambient.min": (-75.0, 200.0, "temperature"),
     "ambient.max": (-75.0, 200.0, "temperature"),
     "thermal.resistance": (0.0, 10e3, "thermal_resistance"),
@@ -165,7 +166,7 @@ BOUNDS: dict[str, tuple[float, float, str]] = {
 _ZERO_MEANS_UNSET = frozenset((
     "hold.band", "hold.off_time", "hold.max_frequency", "timer.max_pwm_frequency",
     "switch.rise_time", "switch.fall_time", "switch.power_rating", "freewheel.zener_voltage",
-    "supply.capacitance", "supply.capacitor_voltage",
+    "supply.capacitance", "supply.capacitor_voltage", "supply.source_resistance",
     "freewheel.resistance", "freewheel.clamp_voltage", "freewheel.diode_power_rating",
     "freewheel.zener_power_rating", "freewheel.resistor_power_rating",
     "freewheel.clamp_power_rating", "freewheel.bypass_power_rating",
@@ -247,6 +248,10 @@ class Supply:
     says whether the supply takes current back (default true); when it cannot, the
     returned charge lands on the bulk ``capacitance`` (F, needed then) and pumps the bus
     up; ``capacitor_voltage`` is that capacitor's rated voltage (V, 0 = not given).
+
+    ``source_resistance`` (ohm, 0 = not given: a stiff bus) is the cable or battery
+    resistance between the source at the supply voltage and the bulk ``capacitance``;
+    with both the bus droops during the peak (:mod:`coildrive.model.supply`).
     """
 
     min: float
@@ -255,6 +260,12 @@ class Supply:
     sink: bool = True
     capacitance: float = 0.0
     capacitor_voltage: float = 0.0
+    source_resistance: float = 0.0
+
+    @property
+    def droops(self) -> bool:
+        """True when the bus droops under the coil's current (a source resistance given)."""
+        return self.source_resistance > 0
 
 
 @dataclass(frozen=True)
@@ -590,7 +601,7 @@ _LATER_FIELDS = (
     (("hold",), Hold, _CURRENT_MODE_KEYS + ("regulation",)),
     (("thermal",), Thermal, ("capacity",)),
     (("pull_in",), PullIn, ("current_margin", "settle_time", "compensate")),
-    (("supply",), Supply, ("sink", "capacitance", "capacitor_voltage")),
+    (("supply",), Supply, ("sink", "capacitance", "capacitor_voltage", "source_resistance")),
     (("board", "sense"), Sense, ("resistance_tolerance", "gain_tolerance")),
     (("board", "supply_sense"), SupplySense, ("divider_tolerance",)),
     (("switch",), Switch, ("rise_time", "fall_time", "power_rating", "power_derating", "topology")),
@@ -1204,6 +1215,34 @@ def resolve_board(spec: str, relative_to: Path | None = None) -> Path:
                      "and no such file")
 
 
+def _check_droop(source: str, fw_origins: dict, coil: Coil, switch: Switch, freewheel: Freewheel,
+                 supply: Supply, hold: Hold, armature: Armature | None) -> None:
+    """What the drooping bus (``supply.source_resistance``) is modelled with: a linear coil,
+    one switch (low or high side), a freewheel path that does not draw from the bus, a
+    voltage-mode hold the firmware runs open loop and no moving armature. Anything else is
+    refused in one line rather than designed on a stiff bus."""
+    if not supply.droops:
+        return
+    why = None
+    if coil.flux_current:
+        key, why = "coil.flux_current", "a flux-linkage curve"
+    elif switch.topology == "full_bridge":
+        key, why = "switch.topology", "a full bridge (its fast decay returns charge to the bus)"
+    elif freewheel.type == "clamp":
+        key, why = "freewheel.type", "a clamp across the switch (the release draws from the bus)"
+        source = fw_origins.get("type", source)
+    elif hold.mode != "voltage":
+        key, why = "hold.mode", "a current-mode hold"
+    elif hold.regulation == "closed_loop":
+        key, why = "hold.regulation", "a closed-loop hold"
+    elif armature is not None:
+        key, why = "armature", "a moving armature"
+    if why is not None:
+        raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
+                         f"{why}: expected source_resistance left out, or a linear coil, one switch, "
+                         "a diode/zener/resistor freewheel, a voltage-mode open-loop hold and no [armature]")
+
+
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,
                   supply: Supply, hold: Hold, armature: Armature | None) -> None:
     """What a full bridge needs: its freewheel path is its switches' body diodes (type
@@ -1273,7 +1312,11 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
                     s.quantity("max", "voltage", positive=True),
                     s.boolean("sink", True),
                     s.quantity("capacitance", "capacitance", 0.0, nonnegative=True),
-                    s.quantity("capacitor_voltage", "voltage", 0.0, nonnegative=True))
+                    s.quantity("capacitor_voltage", "voltage", 0.0, nonnegative=True),
+                    s.quantity("source_resistance", "resistance", 0.0, nonnegative=True))
+    if supply.droops and not supply.capacitance > 0:
+        raise s.fail("capacitance", "missing: with source_resistance the bus droops onto the bulk "
+                     "capacitor at the board, expected its value (e.g. \"470 uF\")")
     if supply.min > supply.max:
         raise s.fail("min", f"{supply.min:g} V is above supply.max ({supply.max:g} V), expected min <= max")
     if not supply.min <= supply.nominal <= supply.max:
@@ -1367,6 +1410,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
     merged, origins = _merged(brd.source, fw_board, source, fw_drive)
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
     _check_bridge(source, origins, switch, freewheel, supply, hold, armature)
+    _check_droop(source, origins, coil, switch, freewheel, supply, hold, armature)
     _flux_curve_limits(source, coil, hold, freewheel, switch, thermal, duty)
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:
         raise InputError(origins.get("clamp_voltage", source), "freewheel.clamp_voltage",

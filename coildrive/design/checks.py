@@ -19,6 +19,7 @@ from .evaluate import PointResults
 from .figures import OVER_CURRENT_FACTOR, worst
 from .result import (ELEMENT_NAMES, AdcThresholds, Check, HoldResult, PullInResult, ReleaseResult,
                      SplitDecayResult, TimerResult)
+from .supply import steady_current
 from .timer import TimerSetting
 
 #: Below this the PWM whine is audible (common practice: the upper limit of hearing).
@@ -41,7 +42,7 @@ def base_checks(drive: Drive, grid: CornerGrid, res: PointResults, pull_in: Pull
     high = res if high is None else high
     checks: list[Check] = []
     add = checks.append
-    i_inf = res.loop.v_on / res.loop.r_on
+    i_inf = steady_current(drive, res.loop)   # V/(R + R_s): the source resistance's share too
     k = worst(i_inf, largest=False)
     reach = bool(np.all(i_inf > drive.pull_in.current))
     add(Check("pull_in_reachable", reach,

@@ -18,8 +18,10 @@ import numpy as np
 from ..config import Drive
 from ..model.circuit import Loop, freewheel_element_energy, loop, two_paths
 from ..model.pwm import PwmSteadyState, duty_for_mean, pwm_steady_state
-from ..model.rl import decay_current, decay_integrals, decay_time, rise_current, rise_time
+from ..model.rl import decay_current, decay_integrals, decay_time
 from ..model.thermal import settle_temperature
+from .supply import rise_current as bus_rise_current
+from .supply import rise_time as bus_rise_time
 
 
 def hold_power(drive: Drive, supply, r_factor, l_factor, duty, frequency, factors: dict | None = None):
@@ -205,8 +207,8 @@ def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
         temp = np.broadcast_to(np.asarray(coil_temp, float), supply.shape).copy()
     finite = np.where(np.isfinite(temp), temp, drive.thermal.max_coil_temp)
     lp = loop(drive, supply, finite, r_factor, l_factor, **factors)
-    t_pull = rise_time(drive.pull_in.current, 0.0, lp.v_on, lp.r_on, lp.inductance)
-    i_peak = rise_current(peak_time, 0.0, lp.v_on, lp.r_on, lp.inductance)
+    t_pull = bus_rise_time(drive, lp, drive.pull_in.current, lp.inductance)
+    i_peak = bus_rise_current(drive, lp, peak_time, lp.inductance)
     ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
     power = ss.rms**2 * lp.r_coil
     i_off = ss.i_max

@@ -21,6 +21,7 @@ from .corners import CornerGrid
 from .evaluate import PointResults
 from .envelope import reading_factors
 from .result import AdcThresholds, Corner, PullInResult, ReleaseResult
+from .supply import steady_current
 
 #: Over-current threshold above the highest normal current (common practice).
 OVER_CURRENT_FACTOR = 1.25
@@ -178,7 +179,7 @@ def pull_in_result(drive: Drive, grid: CornerGrid, res: PointResults, pk,
     reached = pk.ticks is not None
     k_f = pk.k_force
     if not reached:  # name where it is not reached: the lowest steady current
-        k_f = int(np.argmin(np.asarray(res.loop.v_on / res.loop.r_on, float)))
+        k_f = int(np.argmin(np.asarray(steady_current(drive, res.loop), float)))
     return PullInResult(
         current_a=drive.pull_in.current, time_s=pk.t_pull if reached else None,
         worst_corner=grid.label(pk.k_pull if reached else k_f), margin=drive.pull_in.margin,

@@ -42,6 +42,7 @@ from .mechanics import armature_checks, armature_result
 from .peak import plan_peak, shortest_peak_current
 from .regulation import HoldPlan, coil_power_at, solve_hold, table_lookup, table_supplies
 from .result import ActuationPoint, Design, DutyTable, HoldResult, SplitDecayResult, TimerResult
+from .supply import steady_current, supply_checks, supply_result
 from .thermal_cycle import (cycle_caution, cycling, thermal_cautions, thermal_checks,
                             thermal_result)
 from .timer import TimerSetting, solve_timer
@@ -159,6 +160,11 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     notes += topology_cautions(drive, topo)
     checks += bridge_checks(drive, topo)
     checks += thermal_checks(drive, pull_in.peak_time_s, thermal)
+    sense = board.supply_sense
+    sup = supply_result(drive, env, res, long_, d_high,
+                        lambda v: adc_code(v / sense.divider, board.adc.reference, board.adc.bits),
+                        thresholds.supply_min_code)
+    checks += supply_checks(sup)
     if thermal is not None and thermal.cycle is not None:
         notes[2] = cycle_caution(thermal)   # the envelope's hot coil is the cycle's
     notes += thermal_cautions(thermal)
@@ -168,7 +174,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                  checks=checks, cautions=notes, monte_carlo=None,
                  input_hash=drive.input_hash(), worst_corner_index=pk.k_pull, armature=arm,
                  split_decay=split, actuation_points=points, peak_table=pk.table,
-                 thermal_cycle=thermal, topology=topo,
+                 thermal_cycle=thermal, topology=topo, supply=sup,
                  rise_check=rise_check(drive, env, res, f_hold),
                  seat_check=seat_check(drive, env, res_low))
     if samples > 0:
@@ -214,7 +220,7 @@ def plot_points(drive: Drive, pk, env, nom: PointResults, res_low: PointResults,
     hold_time = min(max(2.0 * peak_time, 20.0 / frequency), 2000.0 / frequency)
     k_w = pk.k_pull
     if pk.ticks is None:  # not reached: draw where the steady current is lowest
-        k_w = int(np.argmin(np.asarray(res_low.loop.v_on / res_low.loop.r_on, float)))
+        k_w = int(np.argmin(np.asarray(steady_current(drive, res_low.loop), float)))
     what = "worst pull-in: " if pk.ticks is not None else "pull-in not reached: "
     return (plot_point(drive, "nominal", "nominal", nom, 0, hold_time),
             plot_point(drive, "worst", what + env.label(k_w), res_low, k_w, hold_time))

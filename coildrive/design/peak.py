@@ -29,11 +29,11 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..config import Drive
-from ..model.rl import rise_current, rise_time
 from .corners import CornerGrid
 from .evaluate import PointResults
 from .figures import worst
 from .result import PeakTable
+from .supply import rise_current, rise_time, steady_current
 
 
 @dataclass(frozen=True)
@@ -67,13 +67,14 @@ def _ticks(seconds: float, rate: float) -> int | None:
 def force_times(drive: Drive, res: PointResults) -> tuple[np.ndarray, float]:
     """Time (s) from switch-on to ``current_margin`` x the pull-in current at each point
     (``inf`` where never reached), with the armature open when there is one; and that
-    current (A)."""
+    current (A). On a drooping bus (``supply.source_resistance``) the rise is
+    :mod:`coildrive.design.supply`'s."""
     lp = res.loop
     i_force = drive.pull_in.current_margin * drive.pull_in.current
     ind = lp.inductance
     if drive.armature is not None:
         ind = drive.armature.inductance_open * res.l_factor
-    return rise_time(i_force, 0.0, lp.v_on, lp.r_on, ind), i_force
+    return rise_time(drive, lp, i_force, ind), i_force
 
 
 def requirement(drive: Drive, t_pull: np.ndarray, t_force: np.ndarray) -> tuple[int | None, int | None, int | None]:
@@ -105,7 +106,7 @@ def plan_peak(drive: Drive, grid: CornerGrid, first: PointResults, entry_results
     not_reached = None
     lp = first.loop
     if ticks is None:
-        i_inf = lp.v_on / lp.r_on
+        i_inf = steady_current(drive, lp)
         k = int(np.argmin(i_inf))
         not_reached = (f"not reached: steady current {float(i_inf[k]):.4g} A < pull-in "
                        f"{drive.pull_in.current:.4g} A at {grid.label(k)}")
@@ -146,4 +147,4 @@ def shortest_peak_current(drive: Drive, res: PointResults, short_time: np.ndarra
     an armature the open inductance, before it moves)."""
     lp = res.loop
     ind = lp.inductance if drive.armature is None else drive.armature.inductance_open * res.l_factor
-    return rise_current(short_time, 0.0, lp.v_on, lp.r_on, ind)
+    return rise_current(drive, lp, short_time, ind)

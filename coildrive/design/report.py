@@ -23,7 +23,7 @@ def summary_table(d: Design) -> Table:
     t.add_column("value", justify="right")
     t.add_column("where / how")
     h, r, tm, a = d.hold, d.release, d.timer, d.adc
-    rows = [*_topology_rows(d), *_datasheet_rows(d), *_tolerance_rows(d), *_pull_in_rows(d),
+    rows = [*_topology_rows(d), *_datasheet_rows(d), *_tolerance_rows(d), *_pull_in_rows(d), *_supply_rows(d),
         ("hold frequency", format_si(h.frequency_hz, "Hz", 6),
          f"prescaler {tm.prescaler}, period {tm.period_ticks} counts ({tm.frequency_error:+.3%})"),
         ("hold regulation", h.regulation.replace("_", " "), _regulation_how(d)),
@@ -121,6 +121,25 @@ def _pull_in_rows(d: Design) -> list:
         ("  force margin", f"x{p.current_margin:g} current", force
          + (f"; + settle {_ms(p.settle_time_s)}" if p.settle_time_s > 0 else "")),
         ("current at end of peak", f"<= {p.peak_end_current_max_a:.4g} A", f"at {p.peak_end_corner}"),
+    ]
+
+
+def _supply_rows(d: Design) -> list:
+    """The drooping bus: lowest bus in the peak, the capacitor's energy and ripple current."""
+    s = d.supply
+    if s is None:
+        return []
+    read = ("" if s.lowest_bus_code is None else
+            f"; supply sense reads {s.lowest_bus_code} (supply-min code {s.supply_min_code})")
+    return [
+        ("lowest bus in the peak", f"{s.lowest_bus_v:.4g} V",
+         f"droops {s.droop_v:.4g} V at {s.lowest_bus_corner}, {_ms(s.lowest_bus_time_s)} in "
+         f"(source {s.source_resistance_ohm:.4g} ohm, {s.capacitance_f * 1e6:.4g} uF){read}"),
+        ("capacitor energy in the peak", f"{s.capacitor_energy_j * 1e3:.4g} mJ",
+         f"down to the lowest bus, at {s.capacitor_energy_corner}"),
+        ("capacitor ripple in the hold", f"{s.ripple_current_a * 1e3:.4g} mA rms",
+         f"at {s.ripple_corner} (mean x sqrt(D(1-D)), coil ripple neglected); the hold's bus "
+         f"sits up to {s.hold_droop_v * 1e3:.4g} mV low"),
     ]
 
 

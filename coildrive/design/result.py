@@ -397,6 +397,33 @@ class BridgeResult:
 
 
 @dataclass(frozen=True)
+class SupplyResult:
+    """The drooping bus (``[supply] source_resistance`` and ``capacitance``): the lowest bus
+    during the peak (V, its corner, s after switch-on, and the droop below that corner's
+    supply), the firmware's supply-sense reading of it and its supply-min code (``None``
+    on a board without a supply sense), the energy the capacitor gives up down to the
+    lowest bus (J, largest over the corners), and the capacitor's RMS ripple current in
+    the hold (A, largest over the corners; ``ripple_method`` says how); ``hold_droop_v``:
+    the bus's steady droop in the hold, ``R_s`` x the source's average current (V, largest
+    over the corners; the hold figures are computed on the undrooped supply)."""
+
+    source_resistance_ohm: float
+    capacitance_f: float
+    lowest_bus_v: float
+    lowest_bus_corner: str
+    lowest_bus_time_s: float
+    droop_v: float
+    lowest_bus_code: int | None
+    supply_min_code: int | None
+    capacitor_energy_j: float
+    capacitor_energy_corner: str
+    ripple_current_a: float
+    ripple_corner: str
+    ripple_method: str
+    hold_droop_v: float
+
+
+@dataclass(frozen=True)
 class TopologyResult:
     """Where the switch sits, for a topology other than the low-side switch (``design
     --json`` key ``topology``; absent for a low-side switch, whose switch node is the
@@ -589,6 +616,7 @@ class Design:
     rise_check: RiseCheck | None = None
     seat_check: SeatCheck | None = None
     datasheet: object | None = None   # design.datasheet.DatasheetResult, with datasheet inputs
+    supply: SupplyResult | None = None
 
     @property
     def ok(self) -> bool:
@@ -625,6 +653,8 @@ class Design:
             if topo["bridge"] is None:
                 del topo["bridge"]
             out["topology"] = topo
+        if self.supply is not None:
+            out["supply"] = asdict(self.supply)
         if self.armature is not None:
             out["armature"] = asdict(self.armature)
         if self.split_decay is not None:

@@ -22,6 +22,7 @@ import numpy as np
 
 from ..config import Drive
 from .circuit import full_bridge, loop, split_decay
+from . import supply as bus_model
 from .flux import FluxCoil
 from .rl import decay_current, decay_time, rise_current
 from .topology import coil_voltage, sense_leg_drop, topology_of
@@ -109,7 +110,7 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
     ts, cs, ons = [], [], []
 
     # Peak: full on from zero.
-    i0 = peak_samples(peak_time, v, r_on, ind, big, ts, cs, ons)
+    i0 = peak_samples(peak_time, v, r_on, ind, big, ts, cs, ons, drive)
 
     # Hold: per-period start currents by scalar recurrence, then vectorised sampling.
     t_hold, i_hold, on_hold, t_offedge, i_off, _ = hold_samples(
@@ -140,13 +141,19 @@ def _flux_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: flo
 
 
 def peak_samples(peak_time: float, v: float, r_on: float, ind: float, big: int,
-                 ts: list, cs: list, ons: list) -> float:
+                 ts: list, cs: list, ons: list, drive: Drive | None = None) -> float:
     """Append the peak phase -- full on from zero current for ``peak_time`` s, ``big`` + 1
     samples, through the on-loop ``v`` V, ``r_on`` ohm, ``ind`` H -- to the sample pieces
-    ``ts``/``cs``/``ons`` (s, A, 0/1); returns the current at its end, A."""
+    ``ts``/``cs``/``ons`` (s, A, 0/1); returns the current at its end, A. With a
+    ``drive`` whose supply has a source resistance the rise is on the drooping bus
+    (:mod:`coildrive.model.supply`; the hold that follows sees the stiff supply)."""
     tp = np.linspace(0.0, peak_time, big + 1)
     ts.append(tp)
-    cs.append(rise_current(tp, 0.0, v, r_on, ind))
+    if drive is not None and drive.supply.droops:
+        cs.append(bus_model.current(tp, bus_model.bus(v, drive.supply.source_resistance,
+                                                      drive.supply.capacitance, r_on, ind)))
+    else:
+        cs.append(rise_current(tp, 0.0, v, r_on, ind))
     ons.append(np.ones_like(tp))
     return float(cs[-1][-1])
 
@@ -186,7 +193,7 @@ def _split_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_tim
     v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
     big = 40 * points
     ts, cs, ons = [], [], []
-    i0 = peak_samples(peak_time, v, r_on, ind, big, ts, cs, ons)
+    i0 = peak_samples(peak_time, v, r_on, ind, big, ts, cs, ons, drive)
     t_hold, i_hold, on_hold, t_cut, i_cut, starts = hold_samples(
         peak_time, i0, v, r_on, r_off, v_off, ind, duty, frequency, hold_time, points)
     period = 1.0 / frequency

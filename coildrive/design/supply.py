@@ -1,0 +1,92 @@
+"""The drooping bus in the design: the peak's rise behind ``supply.source_resistance``, and
+the supply's figures and check (:class:`~coildrive.design.result.SupplyResult`).
+
+Without a source resistance the rise is today's stiff-bus RL rise, to the bit; with one,
+the circuit of :mod:`coildrive.model.supply` (source, ``R_s``, bulk ``C``, coil) gives the
+time to the pull-in current and the current at the end of the peak at every point, so the
+worst corner (the hot coil at the lowest supply) includes the droop.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..config import Drive
+from ..model import rl
+from ..model import supply as bus_model
+from .result import Check, SupplyResult
+
+#: How the hold's capacitor ripple current is approximated (shown in the JSON and docs).
+RIPPLE_METHOD = ("coil current flat at its hold mean while on; the source gives the average, "
+                 "the capacitor the rest: mean x sqrt(D (1 - D))")
+
+
+def _bus(drive: Drive, lp, inductance) -> bus_model.Bus:
+    s = drive.supply
+    return bus_model.bus(lp.v_on, s.source_resistance, s.capacitance, lp.r_on, inductance)
+
+
+def rise_time(drive: Drive, lp, i_target, inductance) -> np.ndarray:
+    """Time (s) from switch-on to ``i_target`` A at the points of the loop ``lp``."""
+    if not drive.supply.droops:
+        return rl.rise_time(i_target, 0.0, lp.v_on, lp.r_on, inductance)
+    return bus_model.rise_time(i_target, _bus(drive, lp, inductance))
+
+
+def rise_current(drive: Drive, lp, t, inductance) -> np.ndarray:
+    """Current (A) ``t`` s after switch-on at the points of the loop ``lp``."""
+    if not drive.supply.droops:
+        return rl.rise_current(t, 0.0, lp.v_on, lp.r_on, inductance)
+    return bus_model.current(t, _bus(drive, lp, inductance))
+
+
+def steady_current(drive: Drive, lp) -> np.ndarray:
+    """The current (A) a peak that never ends settles at: ``V/(R + R_s)``."""
+    return lp.v_on / (lp.r_on + drive.supply.source_resistance)
+
+
+def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_code: int) -> SupplyResult | None:
+    """The supply's figures over the points of ``res`` (the longest peak ``peak_time`` s and
+    the hold duty ``duty`` at each point): the lowest bus during the peak and its corner,
+    the energy the capacitor gives up down to it, the capacitor's RMS ripple current in the
+    hold, and the firmware's reading of the lowest bus (``read(volts)`` -> code, the way its
+    supply-min code was made) against that code. ``None`` without a source resistance."""
+    s = drive.supply
+    if not s.droops:
+        return None
+    lp = res.loop
+    b = _bus(drive, lp, lp.inductance)
+    v_low, when = bus_model.lowest_bus(np.broadcast_to(peak_time, lp.v_on.shape), b)
+    k = int(np.argmin(v_low))
+    energy = bus_model.capacitor_energy(s.capacitance, lp.v_on, v_low)
+    k_e = int(np.argmax(energy))
+    ripple = bus_model.hold_ripple_current(res.hold.mean, np.broadcast_to(duty, lp.v_on.shape))
+    k_r = int(np.argmax(ripple))
+    hold_droop = s.source_resistance * np.asarray(res.hold.mean, float) * np.broadcast_to(duty, lp.v_on.shape)
+    code = read(float(v_low[k])) if drive.board.supply_sense else None
+    return SupplyResult(
+        source_resistance_ohm=s.source_resistance, capacitance_f=s.capacitance,
+        lowest_bus_v=float(v_low[k]), lowest_bus_corner=grid.label(k), lowest_bus_time_s=float(when[k]),
+        droop_v=float(lp.v_on[k] - v_low[k]), lowest_bus_code=code,
+        supply_min_code=supply_min_code if drive.board.supply_sense else None,
+        capacitor_energy_j=float(energy[k_e]), capacitor_energy_corner=grid.label(k_e),
+        ripple_current_a=float(ripple[k_r]), ripple_corner=grid.label(k_r), ripple_method=RIPPLE_METHOD,
+        hold_droop_v=float(np.max(hold_droop)))
+
+
+def supply_checks(sup: SupplyResult | None) -> list[Check]:
+    """``supply_droop``: the firmware's lowest reading of the drooping bus stays at or above
+    its supply-min code (it faults on a reading below it during the peak)."""
+    if sup is None:
+        return []
+    where = (f"the bus droops {sup.droop_v:.4g} V to {sup.lowest_bus_v:.4g} V at "
+             f"{sup.lowest_bus_corner}, {sup.lowest_bus_time_s * 1e3:.4g} ms into the peak")
+    if sup.lowest_bus_code is None:
+        return [Check("supply_droop", True, where + "; the board does not measure its supply")]
+    ok = sup.lowest_bus_code >= sup.supply_min_code
+    return [Check("supply_droop", ok,
+                  f"{where}: the supply sense reads {sup.lowest_bus_code}, its supply-min code is "
+                  f"{sup.supply_min_code}" + ("" if ok else
+                  " -- the firmware would fault on its own supply check during the peak: more bulk "
+                  "capacitance (supply.capacitance), a lower source resistance "
+                  "(supply.source_resistance)"))]

@@ -1,0 +1,150 @@
+"""The bus behind a source resistance: the peak's rise on a drooping supply, closed form.
+
+The circuit (one switch, on from ``t = 0``)::
+
+    V_s ──R_s──┬── bus v(t) ──R──L── (switch on) ── 0 V
+               C
+               │
+              0 V
+
+The source (``V_s`` V, the supply corner) charges the bulk capacitor ``C`` F through the
+cable or battery resistance ``R_s`` ohm; the coil loop (``R`` ohm: coil, switch, sense;
+``L`` H) draws ``i(t)`` from the bus. With the state ``x = (i, v)``::
+
+    L di/dt = v - R i
+    C dv/dt = (V_s - v)/R_s - i         i(0) = 0, v(0) = V_s
+
+is linear with constant input: ``x(t) = x_ss + e^{A t} (x(0) - x_ss)`` with
+``A = [[-R/L, 1/L], [-1/C, -1/(R_s C)]]``, the steady state ``i_ss = V_s/(R + R_s)``,
+``v_ss = V_s R/(R + R_s)``, and ``e^{A t}`` from the two eigenvalues of ``A`` (real or a
+complex pair) by Putzer's formula ``e^{At} = e^{l1 t} I + f[l1, l2] (A - l1 I)`` with the
+divided difference ``f = (e^{l1 t} - e^{l2 t})/(l1 - l2)`` (written with ``expm1`` so a
+double eigenvalue and a stiff one stay exact). No time stepping.
+
+The current from ``V_s`` is the step response of an all-pole second-order system
+(``I(s) = V_s / (s ((R + sL)(1 + s R_s C) + R_s))``), so ``i`` rises monotonically up to
+its first maximum at ``t = pi/omega`` (never, when the eigenvalues are real), and ``dv/dt``
+is zero at ``t = 0``: the bus falls monotonically to its first minimum, at the same
+``pi/omega`` (or for ever, when they are real). The rise time is a bisection of the closed
+form on that monotone stretch; the lowest bus over a peak of length ``T`` is
+``v(min(T, pi/omega))``.
+
+Limits: ``R_s -> 0`` is today's stiff bus (``V_s/R`` with ``tau = L/R``); ``C -> 0`` is a
+first-order rise towards ``V_s/(R + R_s)`` with ``tau = L/(R + R_s)`` (the coil sees
+``V_s R/(R + R_s)`` at the end).
+
+All functions broadcast over numpy arrays; units are A, V, ohm, H, F, s.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+#: Bisection steps for the rise time: the bracket shrinks 2^-60, far below a tick.
+BISECTION_STEPS = 60
+
+
+@dataclass(frozen=True)
+class Bus:
+    """The linear circuit at each point (arrays broadcast together): source ``v_s`` V,
+    ``r_s`` ohm, ``c`` F, loop ``r`` ohm and ``l`` H; its eigenvalues ``l1``, ``l2``
+    (complex, ``Re l1 >= Re l2``) and steady state ``i_ss`` A, ``v_ss`` V."""
+
+    v_s: np.ndarray
+    r_s: np.ndarray
+    c: np.ndarray
+    r: np.ndarray
+    l: np.ndarray
+    l1: np.ndarray
+    l2: np.ndarray
+    i_ss: np.ndarray
+    v_ss: np.ndarray
+
+    @property
+    def turn_time(self) -> np.ndarray:
+        """``pi/omega`` s: the current's first maximum and the bus's first minimum (``inf``
+        when the eigenvalues are real: both monotone for ever)."""
+        w = np.abs(self.l1.imag)
+        with np.errstate(divide="ignore"):
+            return np.where(w > 0, np.pi / np.where(w > 0, w, 1.0), np.inf)
+
+
+def bus(v_s, r_s, c, r, l) -> Bus:
+    """The circuit of the module docstring at each point (``r_s`` > 0, ``c`` > 0)."""
+    v_s, r_s, c, r, l = np.broadcast_arrays(*(np.asarray(x, float) for x in (v_s, r_s, c, r, l)))
+    a, b = -r / l, -1.0 / (r_s * c)             # the diagonal of A
+    half = 0.5 * (a + b)
+    disc = np.sqrt((0.5 * (a - b)).astype(complex) ** 2 - 1.0 / (l * c))   # (tr/2)^2 - det
+    l1, l2 = half + disc, half - disc
+    swap = l2.real > l1.real
+    l1, l2 = np.where(swap, l2, l1), np.where(swap, l1, l2)
+    i_ss = v_s / (r + r_s)
+    return Bus(v_s, r_s, c, r, l, l1, l2, i_ss, v_s - r_s * i_ss)
+
+
+def state(t, b: Bus) -> tuple[np.ndarray, np.ndarray]:
+    """``(i A, v V)`` at ``t`` s after switch-on (Putzer's formula, module docstring)."""
+    t = np.asarray(t, float)
+    e1 = np.exp(b.l1 * t)
+    x = (b.l1 - b.l2) * t
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ratio = np.where(np.abs(x) > 1e-12, -np.expm1(-x) / np.where(x == 0, 1.0, x), 1.0 - 0.5 * x)
+    f = e1 * t * ratio                           # (e^{l1 t} - e^{l2 t}) / (l1 - l2)
+    y_i, y_v = -b.i_ss, b.v_s - b.v_ss           # x(0) - x_ss
+    a11, a12 = -b.r / b.l, 1.0 / b.l
+    a21, a22 = -1.0 / b.c, -1.0 / (b.r_s * b.c)
+    i = b.i_ss + (e1 * y_i + f * ((a11 - b.l1) * y_i + a12 * y_v)).real
+    v = b.v_ss + (e1 * y_v + f * (a21 * y_i + (a22 - b.l1) * y_v)).real
+    return i, v
+
+
+def rise_time(i_target, b: Bus) -> np.ndarray:
+    """Time (s) from switch-on to ``i_target`` A on the drooping bus (``inf`` where the
+    current never gets there): a bisection of the closed form on its monotone stretch
+    ``[0, pi/omega]`` (for real eigenvalues, a bracket doubled from the slow time
+    constant until it holds the crossing)."""
+    target = np.broadcast_to(np.asarray(i_target, float), b.i_ss.shape)
+    slow = -1.0 / b.l1.real
+    hi = np.where(np.isfinite(b.turn_time), b.turn_time, slow)
+    reached = np.where(np.isfinite(b.turn_time), state(hi, b)[0] >= target, target < b.i_ss)
+    for _ in range(80):          # real eigenvalues: grow the bracket (converges: i -> i_ss)
+        short = reached & (state(hi, b)[0] < target)
+        if not short.any():
+            break
+        hi = np.where(short, 2.0 * hi, hi)
+    lo = np.zeros_like(hi)
+    for _ in range(BISECTION_STEPS):
+        mid = 0.5 * (lo + hi)
+        up = state(mid, b)[0] >= target
+        lo, hi = np.where(up, lo, mid), np.where(up, mid, hi)
+    return np.where(reached & (target > 0), hi, np.where(target <= 0, 0.0, np.inf))
+
+
+def current(t, b: Bus) -> np.ndarray:
+    """Coil current (A) at ``t`` s after switch-on."""
+    return state(t, b)[0]
+
+
+def lowest_bus(t_end, b: Bus) -> tuple[np.ndarray, np.ndarray]:
+    """``(lowest bus V, when s)`` over a peak of ``t_end`` s: the bus falls monotonically
+    to its first minimum at ``pi/omega`` (module docstring)."""
+    when = np.minimum(np.asarray(t_end, float), b.turn_time)
+    return state(when, b)[1], when
+
+
+def capacitor_energy(c, v_s, v_low) -> np.ndarray:
+    """Energy (J) the capacitor gives up as the bus falls from ``v_s`` to ``v_low`` V:
+    ``C (v_s^2 - v_low^2) / 2``."""
+    return 0.5 * np.asarray(c, float) * (np.asarray(v_s, float) ** 2 - np.asarray(v_low, float) ** 2)
+
+
+def hold_ripple_current(mean, duty) -> np.ndarray:
+    """RMS (A) of the capacitor's current in the PWM hold: the bus draws the coil current
+    in the on-time only; the source, behind ``R_s`` with ``R_s C`` long against the PWM
+    period, gives its average; the capacitor carries the rest. With the coil's own ripple
+    neglected against its mean (the coil current taken flat at ``mean`` A while on), that
+    is ``mean * sqrt(D (1 - D))``."""
+    d = np.asarray(duty, float)
+    return np.asarray(mean, float) * np.sqrt(np.clip(d * (1.0 - d), 0.0, None))

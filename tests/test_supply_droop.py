@@ -1,0 +1,182 @@
+"""The drooping bus (``[supply] source_resistance`` + ``capacitance``) against the outside world.
+
+The circuit (coildrive/model/supply.py): a source at the supply voltage, its resistance
+``R_s``, the bulk capacitor ``C`` at the board, and the coil loop (``R``, ``L``) switched on
+at ``t = 0``. References:
+
+* ngspice (batch mode, ``ngspice -b``): the same circuit as a netlist -- ``V`` source,
+  ``R`` and ``C`` elements with initial conditions (``IC=``, ``.tran ... UIC``), the switch
+  as a B source (behavioural current source) whose conductance a ``PULSE`` gate sets (the
+  pattern of tests/test_reference_ngspice.py), and ``.meas tran`` ``WHEN ... CROSS=1``
+  (the rise time), ``MIN`` (the lowest bus) and ``FIND ... AT`` (the current at the end);
+* scipy's ``solve_ivp`` (Radau) of the same two equations, written afresh here;
+* two hand-worked limits: ``R_s -> 0`` is the stiff bus's RL rise, ``C -> 0`` a rise
+  towards ``V/(R + R_s)`` with ``tau = L/(R + R_s)``.
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from conftest import EXAMPLES, run_cli
+from ngspice_run import OPTIONS, run
+
+from coildrive.model import rl
+from coildrive.model import supply as bus_model
+
+#: (name, V_s V, R_s ohm, C F, R ohm, L H, pull-in A, peak s): an overdamped relay on a
+#: long cable, and an underdamped low-resistance coil on a battery (complex eigenvalues).
+CASES = [
+    ("overdamped", 12.0, 2.0, 100e-6, 44.0, 0.2, 0.16, 20e-3),
+    ("underdamped", 12.0, 1.0, 1e-3, 1.0, 1e-3, 3.0, 10e-3),
+]
+R_SWITCH = 0.01   # ohm of the netlist's switch, part of R
+
+
+def _model(vs, rs, c, r, l, i_pull, t_end):
+    b = bus_model.bus(vs, rs, c, r, l)
+    t_pull = float(bus_model.rise_time(i_pull, b))
+    v_low, _ = bus_model.lowest_bus(t_end, b)
+    return t_pull, float(v_low), float(bus_model.current(t_end, b))
+
+
+@pytest.mark.parametrize("case", CASES, ids=[c[0] for c in CASES])
+def test_droop_against_ngspice(tmp_path, case):
+    name, vs, rs, c, r, l, i_pull, t_end = case
+    step = t_end / 20000
+    text = f"""* drooping bus: source, R_s, bulk C, coil R and L, switch
+VS src 0 DC {vs!r}
+RS src bus {rs!r}
+C1 bus 0 {c!r} IC={vs!r}
+RC bus a {r - R_SWITCH!r}
+L1 a m {l!r} IC=0
+VM m sw DC 0
+VG g 0 PULSE(0 1 0 1n 1n 1 2)
+BSW sw 0 I = V(sw) * (V(g) / {R_SWITCH!r} + (1 - V(g)) * 1e-9)
+{OPTIONS}
+.tran {step!r} {t_end!r} 0 {step!r} UIC
+.meas tran tpull WHEN i(VM)={i_pull!r} CROSS=1
+.meas tran vlow MIN v(bus)
+.meas tran iend FIND i(VM) AT={t_end!r}
+.end
+"""
+    got = run(tmp_path, name, text)
+    t_pull, v_low, i_end = _model(vs, rs, c, r, l, i_pull, t_end)
+    # ngspice transient: 0.1 % + one time step on the time; 1 mV on the bus; 0.1 % current
+    assert abs(t_pull - got["tpull"]) <= 1e-3 * t_pull + step, (t_pull, got)
+    assert abs(v_low - got["vlow"]) <= 1e-3, (v_low, got)
+    assert abs(i_end - got["iend"]) <= 1e-3 * abs(i_end), (i_end, got)
+
+
+@pytest.mark.parametrize("case", CASES, ids=[c[0] for c in CASES])
+def test_droop_against_solve_ivp(case):
+    from scipy.integrate import solve_ivp
+
+    name, vs, rs, c, r, l, i_pull, t_end = case
+
+    def f(t, x):          # x = (coil current, bus voltage)
+        i, v = x
+        return [(v - r * i) / l, ((vs - v) / rs - i) / c]
+
+    def reach(t, x):
+        return x[0] - i_pull
+    reach.terminal = False
+    sol = solve_ivp(f, (0.0, t_end), [0.0, vs], method="Radau", rtol=1e-10, atol=1e-12,
+                    dense_output=True, events=reach)
+    t_pull, v_low, i_end = _model(vs, rs, c, r, l, i_pull, t_end)
+    tt = np.linspace(0.0, t_end, 200001)
+    # scipy solve_ivp (Radau, rtol 1e-10): the event's first time, the dense bus minimum
+    assert t_pull == pytest.approx(sol.t_events[0][0], rel=1e-7)
+    assert v_low == pytest.approx(float(np.min(sol.sol(tt)[1])), abs=1e-6)
+    assert i_end == pytest.approx(float(sol.y[0, -1]), rel=1e-7)
+    # the closed form along the whole peak, not only at its figures
+    i_m, v_m = bus_model.state(tt[::1000], bus_model.bus(vs, rs, c, r, l))
+    ref = sol.sol(tt[::1000])
+    assert np.max(np.abs(i_m - ref[0])) <= 1e-7 * np.max(np.abs(ref[0]))
+    assert np.max(np.abs(v_m - ref[1])) <= 1e-7 * vs
+
+
+def test_limits_hand_worked():
+    vs, r, l, i_pull = 12.0, 44.0, 0.2, 0.16
+    # R_s -> 0: the stiff bus, i = V/R (1 - e^{-t R/L})  (hand-worked: the RL step)
+    b = bus_model.bus(vs, 1e-9, 100e-6, r, l)
+    assert float(bus_model.rise_time(i_pull, b)) == pytest.approx(
+        float(rl.rise_time(i_pull, 0.0, vs, r, l)), rel=1e-7)
+    assert float(bus_model.lowest_bus(1.0, b)[0]) == pytest.approx(vs, abs=1e-6)
+    # C -> 0: the bus is V - R_s i, so the coil rises towards V/(R + R_s) with
+    # tau = L/(R + R_s) and ends seeing V R/(R + R_s)  (hand-worked: Thevenin + RL step)
+    rs = 6.0
+    b = bus_model.bus(vs, rs, 1e-12, r, l)
+    tau = l / (r + rs)
+    t = -tau * np.log(1.0 - i_pull * (r + rs) / vs)
+    assert float(bus_model.rise_time(i_pull, b)) == pytest.approx(t, rel=1e-7)
+    assert float(bus_model.lowest_bus(20 * tau, b)[0]) == pytest.approx(vs * r / (r + rs), rel=1e-7)
+    # never reached: the steady current V/(R + R_s) below the target
+    assert bus_model.rise_time(vs / (r + rs) * 1.01, b) == np.inf
+    # the hold's capacitor ripple: a square wave of height I, duty D has AC rms I sqrt(D(1-D))
+    assert float(bus_model.hold_ripple_current(2.0, 0.25)) == pytest.approx(2.0 * np.sqrt(0.1875))
+
+
+def _drive(tmp_path, rs: str, extra: str = "") -> str:
+    text = (EXAMPLES / "relay-12v.toml").read_text().replace(
+        'max = "14.4 V"', f'max = "14.4 V"\nsource_resistance = "{rs}"\ncapacitance = "470 uF"', 1)
+    text = text.replace('board = "tiny-8bit-diode"', f'board = "{EXAMPLES.parent / "boards" / "tiny-8bit-diode.toml"}"')
+    path = tmp_path / f"droop-{rs.split()[0]}.toml"
+    path.write_text(text + extra)
+    return str(path)
+
+
+def test_design_droop_end_to_end(tmp_path):
+    from coildrive.config import load_drive
+    from coildrive.design import design
+
+    stiff = run_cli("design", str(EXAMPLES / "relay-12v.toml"), "--json")
+    bad = run_cli("design", _drive(tmp_path, "0.5 ohm"), "--json")
+    assert bad.returncode == 1, bad.stderr
+    a, b = json.loads(stiff.stdout), json.loads(bad.stdout)
+    assert "supply" not in a
+    s = b["supply"]
+    # the pull-in corner includes the droop: slower than on the stiff bus
+    assert b["pull_in"]["time_s"] > a["pull_in"]["time_s"]
+    assert s["lowest_bus_corner"].startswith("9.6 V") and s["lowest_bus_v"] < 9.6
+    assert s["capacitor_energy_j"] > 0 and s["ripple_current_a"] > 0
+    check = {c["name"]: c for c in b["checks"]}["supply_droop"]
+    assert not check["ok"] and "supply.capacitance" in check["detail"]
+    assert s["lowest_bus_code"] < s["supply_min_code"]
+    # a 10 mohm source droops less than one supply-sense code: the check passes
+    d = design(load_drive(_drive(tmp_path, "10 mohm")))
+    assert {c.name: c for c in d.checks}["supply_droop"].ok
+    # R_s near the bottom of its range (100 uohm): the stiff bus's peak, pull-in within 1e-4
+    near = design(load_drive(_drive(tmp_path, "0.2 mohm")))
+    assert near.pull_in.peak_ticks == a["pull_in"]["peak_ticks"]
+    assert near.pull_in.time_s == pytest.approx(a["pull_in"]["time_s"], rel=1e-4)
+
+
+def test_bad_input_one_line(tmp_path):
+    from typer.testing import CliRunner
+
+    from coildrive.cli import app
+
+    runner = CliRunner()
+    text = (EXAMPLES / "relay-12v.toml").read_text().replace(
+        'max = "14.4 V"', 'max = "14.4 V"\nsource_resistance = "0.5 ohm"', 1)
+    path = tmp_path / "no-cap.toml"
+    path.write_text(text.replace('board = "tiny-8bit-diode"',
+                                 f'board = "{EXAMPLES.parent / "boards" / "tiny-8bit-diode.toml"}"'))
+    out = runner.invoke(app, ["design", str(path)])
+    assert out.exit_code == 2
+    line = out.stderr.strip()
+    assert "\n" not in line and "supply.capacitance" in line and "no-cap.toml" in line
+    out = runner.invoke(app, ["design", _drive(tmp_path, "-1 ohm")])
+    assert out.exit_code == 2 and "supply.source_resistance" in out.stderr.strip()
+    cm = tmp_path / "current-mode.toml"
+    cm.write_text(Path(_drive(tmp_path, "0.5 ohm")).read_text().replace(
+        '[hold]', '[hold]\nmode = "current"\nband = "10 mA"', 1))
+    out = runner.invoke(app, ["design", str(cm)])
+    assert out.exit_code == 2, out.stdout
+    line = out.stderr.strip()
+    assert "\n" not in line and "hold.mode" in line and "not modelled" in line
