@@ -534,6 +534,25 @@ class Tick:
 
 
 @dataclass(frozen=True)
+class Channels:
+    """A board with several drive channels (``[channels]``): ``count`` channels numbered
+    1..count; ``timers`` lists the groups of channels that share one PWM timer (one
+    prescaler and period, a compare per channel), ``supplies`` the groups that share one
+    supply rail, ``freewheels`` the groups whose freewheel element is one shared part
+    (e.g. one Zener for a common return). A channel in no group has its own."""
+
+    count: int
+    timers: tuple[tuple[int, ...], ...] = ()
+    supplies: tuple[tuple[int, ...], ...] = ()
+    freewheels: tuple[tuple[int, ...], ...] = ()
+
+    def group(self, kind: str, number: int) -> tuple[int, ...]:
+        """The channels that share ``kind`` (``"timers"``, ``"supplies"``, ``"freewheels"``)
+        with channel ``number`` (itself alone when it is in no group)."""
+        return next((g for g in getattr(self, kind) if number in g), (number,))
+
+
+@dataclass(frozen=True)
 class Board:
     """A driver board profile."""
 
@@ -551,6 +570,7 @@ class Board:
     ram: int = 0          # bytes of RAM on the part, 0 = not given
     flash: int = 0        # bytes of program flash, 0 = not given
     core: str = ""        # the processor core (BOARD_CORES), "" = not given
+    channels: Channels | None = None   # several drive channels (system files), None = one
 
 
 @dataclass(frozen=True)
@@ -575,6 +595,9 @@ class Drive:
     armature: Armature | None = None
     source: str = ""
     duty: Duty | None = None
+    #: ``(prescaler, period counts)`` of a timer shared with other channels (a system
+    #: file's, :mod:`coildrive.design.system`); None: solved for ``hold.frequency``.
+    shared_timer: tuple[int, int] | None = None
 
     def input_hash(self) -> str:
         """SHA-256 (first 16 hex digits) of the parsed inputs as canonical JSON.
@@ -610,7 +633,8 @@ _LATER_FIELDS = (
     (("freewheel",), Freewheel, _FREEWHEEL_LATER),
     (("board", "freewheel"), Freewheel, _FREEWHEEL_LATER),
     (("board", "timer"), Timer, ("max_pwm_frequency",)),
-    (("board",), Board, ("ram", "flash")),
+    (("board",), Board, ("ram", "flash", "channels")),
+    ((), Drive, ("shared_timer",)),
 )
 
 
@@ -1137,7 +1161,8 @@ def load_board(path: str | Path) -> Board:
     path = Path(path)
     source = str(path)
     data = _read_toml(path)
-    tables = ("timer", "adc", "sense", "supply_sense", "switch", "freewheel", "link", "tick")
+    tables = ("timer", "adc", "sense", "supply_sense", "switch", "freewheel", "link", "tick",
+              "channels")
     _root_sections(source, data, tables, ("name", "description", "ram", "flash", "core"))
     root = _Section(source, {k: v for k, v in data.items() if not isinstance(v, dict)}, "")
     name = root.text("name")
@@ -1179,8 +1204,39 @@ def load_board(path: str | Path) -> Board:
     tick = Tick(s.quantity("rate", "frequency", positive=True))
     s.finish()
     core = root.choice("core", BOARD_CORES, "") if "core" in root.table else ""
+    channels = _read_channels(_section(source, data, "channels")) if "channels" in data else None
     return Board(name, description, timer, adc, sense, supply_sense, switch, freewheel, link,
-                 tick, source, _memory_size(root, "ram"), _memory_size(root, "flash"), core)
+                 tick, source, _memory_size(root, "ram"), _memory_size(root, "flash"), core,
+                 channels)
+
+
+#: Most channels a board may have.
+MAX_CHANNELS = 64
+
+
+def _read_channels(s: _Section) -> Channels:
+    """``[channels]``: ``count`` and the groups (lists of channel numbers) sharing a timer,
+    a supply rail or a freewheel part; each channel in at most one group of a kind."""
+    count = s.integer("count", low=1, high=MAX_CHANNELS)
+    groups = {}
+    for key in ("timers", "supplies", "freewheels"):
+        raw = s._get(key, [])
+        if not isinstance(raw, list) or not all(isinstance(g, list) and g for g in raw):
+            raise s.fail(key, f"{short_repr(raw)} is not a list of channel lists, expected e.g. "
+                         "[[1, 2, 3], [4, 5]]")
+        seen: set[int] = set()
+        for g in raw:
+            for n in g:
+                if isinstance(n, bool) or not isinstance(n, int) or not 1 <= n <= count:
+                    raise s.fail(key, f"{short_repr(n)} is not a channel number 1..{count} "
+                                 "(channels.count)")
+                if n in seen:
+                    raise s.fail(key, f"channel {n} is in two groups, expected each channel in "
+                                 "at most one")
+                seen.add(n)
+        groups[key] = tuple(tuple(g) for g in raw)
+    s.finish()
+    return Channels(count, **groups)
 
 
 #: The board file's ``core`` values: the cores whose handler timings firmware-driver knows.

@@ -24,6 +24,10 @@ def _run_design(drive_path: Path, board: Optional[str], as_json: bool, header: O
 
     if samples < 0:
         raise InputError("--samples", "", f"{samples} is negative, expected a count >= 0")
+    from ..system_file import is_system_file
+    if is_system_file(drive_path):
+        from .system_cmd import run_system_design
+        return run_system_design(drive_path, board, as_json, header, plot, prefix, samples)
     drive = load_drive(drive_path, board)
     if header is not None:
         from ..codegen.header import check_prefix
@@ -52,12 +56,12 @@ def _run_design(drive_path: Path, board: Optional[str], as_json: bool, header: O
 
 @user_errors
 def design_command(
-    drive: Path = typer.Argument(..., help="Drive file (TOML)."),
+    drive: Path = typer.Argument(..., help="Drive file, or a system file of several channels (TOML)."),
     board: Optional[str] = typer.Option(None, "--board", "-b", help="Bundled board name or board file; overrides the drive file's board."),
     as_json: bool = typer.Option(False, "--json", help="Print the design as one JSON document on stdout."),
     header: Optional[Path] = typer.Option(None, "--header", help="Write the C header here (only when every check passes)."),
     plot: Optional[Path] = typer.Option(None, "--plot", help="Write a PNG of the nominal and worst-corner actuation."),
-    prefix: str = typer.Option("COIL", "--prefix", help="Name prefix of the header's macros."),
+    prefix: str = typer.Option("COIL", "--prefix", help="Name prefix of the header's macros (a system file's shared block: BOARD unless given)."),
     samples: int = typer.Option(0, "--samples", help="Add a tolerance Monte Carlo of N samples."),
     seed: int = typer.Option(1, "--seed", help="Random seed of the Monte Carlo."),
 ) -> None:

@@ -702,3 +702,76 @@ class ActuationPoint:
     r_factor: float
     l_factor: float
     hold_time_s: float
+
+
+@dataclass(frozen=True)
+class SystemChannel:
+    """One channel of a system: its name (the header prefix in capitals), the board's
+    channel number, its drive file, its peak's start after the first channel's
+    (``offset_ticks`` scheduler ticks, ``offset_s`` s; ``offset_fixed``: the system file
+    gave it), the figures its rail-current bound reads (``bound``, SI, see
+    :func:`coildrive.design.system.draw_bound`) and its Design."""
+
+    name: str
+    number: int
+    drive_file: str
+    offset_ticks: int
+    offset_s: float
+    offset_fixed: bool
+    bound: dict
+    design: Design
+
+
+@dataclass(frozen=True)
+class SystemResult:
+    """Several channels on one board designed together (:mod:`coildrive.design.system`;
+    ``design --json`` key ``system``). ``current_limit_a`` (0: not given) and the least
+    ``stagger_ticks`` between the peaks that keeps every rail within it (``stagger_search``
+    says how it was found); ``timers``: each shared timer (its channels, prescaler, period,
+    frequency, each channel's compare); ``rails``: each shared supply rail (its channels,
+    the bound of their current with the peaks together and staggered, the holds' average
+    current, and with a source resistance the lowest bus together and staggered);
+    ``heat``: W per channel, in each shared freewheel part and on the board; the channels
+    in file order; the system's own checks (each channel's are in its Design)."""
+
+    name: str
+    source: str
+    board: str
+    current_limit_a: float
+    stagger_ticks: int
+    stagger_search: str
+    timers: list
+    rails: list
+    heat: dict
+    channels: list
+    checks: list
+
+    @property
+    def ok(self) -> bool:
+        return (all(c.ok for c in self.checks if c.severity == "error")
+                and all(ch.design.ok for ch in self.channels))
+
+    @property
+    def failed(self) -> list[str]:
+        """Failed checks, channel ones as ``name.check``."""
+        return ([c.name for c in self.checks if not c.ok and c.severity == "error"]
+                + [f"{ch.name}.{c.name}" for ch in self.channels for c in ch.design.failed])
+
+    def to_dict(self) -> dict:
+        """The ``design --json`` document of a system file: ``{"ok", "system": {...}}``."""
+        return json_ready({
+            "ok": self.ok,
+            "version": __version__,
+            "system": {
+                "name": self.name, "file": self.source, "board": self.board,
+                "current_limit_a": self.current_limit_a, "stagger_ticks": self.stagger_ticks,
+                "stagger_search": self.stagger_search,
+                "tick_rate_hz": self.channels[0].design.drive.board.tick.rate,
+                "timers": self.timers, "rails": self.rails, "heat": self.heat,
+                "checks": [asdict(c) for c in self.checks],
+                "channels": [{"name": c.name, "board_channel": c.number, "drive_file": c.drive_file,
+                              "offset_ticks": c.offset_ticks, "offset_s": c.offset_s,
+                              "offset_fixed": c.offset_fixed, "bound": c.bound,
+                              "design": c.design.to_dict()} for c in self.channels],
+            },
+        })
