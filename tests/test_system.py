@@ -1,0 +1,216 @@
+"""Several channels on one board (a system file): the shared timer, the staggered peaks
+within the rail's current limit, the shared rail's droop, the header, the CLI.
+
+Outside references, named beside each check:
+
+* the channels designed alone (``coildrive design`` of each drive file): the shared timer
+  must give the same hold currents within one compare count;
+* the rail's current written afresh here (``i(t) = V/R (1 - exp(-t R/L))`` per channel
+  during its peak, then the hold's bound), swept at 1e5 points with numpy;
+* ngspice (batch mode, ``ngspice -b``): several coils switched onto one bus behind the
+  source resistance and the bulk capacitor, ``.meas tran MIN v(bus)``;
+* the C compilers (gcc, arm-none-eabi-gcc, avr-gcc) on the board's header with
+  ``-Wall -Wextra -Werror -pedantic``.
+"""
+
+from __future__ import annotations
+
+import json
+import subprocess
+
+import numpy as np
+import pytest
+from typer.testing import CliRunner
+
+from conftest import EXAMPLES, require_tool, run_cli
+from ngspice_run import OPTIONS, run
+
+from coildrive.cli import app
+from coildrive.config import load_drive
+from coildrive.design import design
+from coildrive.model import shared_bus
+from coildrive.model import supply as bus_model
+
+SYSTEM = EXAMPLES / "manifold" / "manifold-system.toml"
+
+
+@pytest.fixture(scope="module")
+def doc():
+    r = CliRunner().invoke(app, ["design", str(SYSTEM), "--json"])
+    assert r.exit_code == 0, r.output
+    return json.loads(r.stdout)["system"]
+
+
+def test_shared_timer_against_each_channel_alone(doc):
+    """Reference: each channel's drive file designed alone. One prescaler and period
+    serve every channel, inside each one's window; the hold currents agree within one
+    compare count."""
+    (timer,) = doc["timers"]
+    for ch in doc["channels"]:
+        shared = ch["design"]
+        assert (shared["timer"]["prescaler"], shared["timer"]["period_ticks"]) == \
+            (timer["prescaler"], timer["period_ticks"])
+        alone = design(load_drive(ch["drive_file"]))
+        f, tol = shared["timer"]["frequency_hz"], alone.drive.hold.frequency_tolerance
+        assert abs(f / alone.drive.hold.frequency - 1) <= tol + 1e-12, (ch["name"], f)
+        # the hold current (the least mean over the corners): within one compare count
+        step = max(shared["hold"]["current_step_a"], alone.hold.current_step_a)
+        assert abs(shared["hold"]["min_mean_current_a"] - alone.hold.min_mean_current_a) <= step, \
+            (ch["name"], shared["hold"]["min_mean_current_a"], alone.hold.min_mean_current_a, step)
+        # the most (a supply-table entry's top supply, cold coil): each design rounds each
+        # entry up at its own period, so two counts of the current there
+        count = alone.drive.supply.max / min(c.resistance_ohm for c in alone.corners) / \
+            shared["timer"]["period_ticks"]
+        assert abs(shared["hold"]["max_mean_current_a"] - alone.hold.max_mean_current_a) <= 2 * count, \
+            (ch["name"], shared["hold"]["max_mean_current_a"], alone.hold.max_mean_current_a, count)
+        assert shared["hold"]["min_mean_current_a"] >= alone.drive.hold.current
+
+
+def _draw(t, b):
+    """The channel's rail current bound, written afresh from docs/design-method.md."""
+    rise = b["supply_v"] / b["resistance_ohm"] * (1 - np.exp(-np.maximum(t, 0) * b["resistance_ohm"] / b["inductance_h"]))
+    age = np.maximum(t - b["peak_s"] - b["pwm_period_s"], 0)
+    tail = b["hold_top_a"] + b["excess_a"] * np.exp(-age * b["rate_per_s"])
+    return np.where(t < 0, 0, np.where(t <= b["peak_s"], rise, tail))
+
+
+def test_staggered_total_never_above_the_limit(doc):
+    """A dense sweep (1e5 points, numpy) of the sum written afresh: never above the
+    limit with the stagger; the peaks together are well above it."""
+    limit = doc["current_limit_a"]
+    chans = doc["channels"]
+    end = max(c["offset_s"] + c["bound"]["peak_s"] for c in chans) + 0.05
+    t = np.linspace(0, end, 100_000)
+    total = sum(_draw(t - c["offset_s"], c["bound"]) for c in chans)
+    assert total.max() <= limit, total.max()
+    together = sum(_draw(t, c["bound"]) for c in chans)
+    assert together.max() > limit
+    # the search's own bound is never below the sampled sum
+    assert doc["rails"][0]["peak_current_staggered_a"] >= total.max() - 1e-12
+    tick = 1 / doc["tick_rate_hz"]
+    assert [c["offset_ticks"] for c in chans] == [k * doc["stagger_ticks"] for k in range(len(chans))]
+    assert all(abs(c["offset_s"] - c["offset_ticks"] * tick) < 1e-12 for c in chans)
+
+
+def test_bound_covers_the_simulated_actuation(doc):
+    """The bound against the design's own simulated actuation (the current the switch
+    draws, coil current x switch on) at the corner of the most current: plumbing of the
+    same physics, so it shows the bound is applied to the right figures."""
+    from coildrive.design import actuation
+
+    for ch in (doc["channels"][0], doc["channels"][-1]):
+        d = design(load_drive(ch["drive_file"], EXAMPLES.parent / "boards" / "manifold-m32-6ch.toml"))
+        tol_r, tol_l = d.drive.coil.resistance_tolerance, d.drive.coil.inductance_tolerance
+        w = actuation(d, d.drive.supply.max, d.drive.ambient.min, 0.03, 1 - tol_r, 1 - tol_l)
+        draw = w.current * w.switch_on
+        on = w.time < w.events["off"]
+        assert np.all(draw[on] <= _draw(w.time[on], ch["bound"]) + 1e-9)
+
+
+#: (name, V_s V, R_s ohm, C F, [(R ohm, L H, on s)]): three coils together and staggered.
+DROOP = [
+    ("together", 20.0, 0.25, 1e-3, [(31.0, 0.038, 0.0), (31.0, 0.038, 0.0), (20.6, 0.06, 0.0)]),
+    ("staggered", 20.0, 0.5, 470e-6, [(31.0, 0.038, 0.0), (20.6, 0.06, 1.5e-3), (8.0, 0.01, 3e-3)]),
+]
+
+
+@pytest.mark.parametrize("case", DROOP, ids=[c[0] for c in DROOP])
+def test_shared_droop_against_ngspice(tmp_path, case):
+    """Reference: ngspice, the source, R_s, the bulk C and each coil switched on at its
+    time by a gated conductance (the pattern of tests/test_supply_droop.py)."""
+    name, vs, rs, c, coils = case
+    t_end = 8e-3
+    step = t_end / 20000
+    lines = [f"* {name}: {len(coils)} coils on one bus", f"VS src 0 DC {vs!r}", f"RS src bus {rs!r}",
+             f"C1 bus 0 {c!r} IC={vs!r}"]
+    for k, (r, l, on) in enumerate(coils):
+        lines += [f"RC{k} bus a{k} {r - 0.01!r}", f"L{k} a{k} s{k} {l!r} IC=0",
+                  f"VG{k} g{k} 0 PULSE(0 1 {on!r} 1n 1n 1 2)",
+                  f"B{k} s{k} 0 I = V(s{k}) * (V(g{k}) / 0.01 + (1 - V(g{k})) * 1e-9)"]
+    lines += [OPTIONS, f".tran {step!r} {t_end!r} 0 {step!r} UIC", ".meas tran vlow MIN v(bus)", ".end", ""]
+    got = run(tmp_path, name, "\n".join(lines))
+    r, l, on = zip(*coils)
+    v_low, _ = shared_bus.lowest_bus(vs, rs, c, r, l, on, [t_end] * len(coils))
+    # ngspice transient: 1 mV on the bus
+    assert abs(v_low - got["vlow"]) <= 1e-3, (v_low, got)
+
+
+def test_one_coil_is_the_two_by_two_bus():
+    """One coil on the shared bus is the closed form of coildrive/model/supply.py."""
+    b = bus_model.bus(12.0, 1.0, 1e-3, 1.0, 1e-3)
+    v_ref, _ = bus_model.lowest_bus(10e-3, b)
+    v_low, _ = shared_bus.lowest_bus(12.0, 1.0, 1e-3, [1.0], [1e-3], [0.0], [10e-3])
+    assert abs(v_low - float(v_ref)) < 1e-9
+
+
+@pytest.mark.compiler
+def test_cli_header_compiles_for_every_target(tmp_path):
+    """A real subprocess writes the header; gcc, arm-none-eabi-gcc and avr-gcc compile it
+    (-Wall -Wextra -Werror -pedantic) and gcc's program prints the JSON's numbers."""
+    h = tmp_path / "manifold.h"
+    p = run_cli("design", str(SYSTEM), "--header", str(h), "--json")
+    assert p.returncode == 0, p.stderr
+    doc = json.loads(p.stdout)["system"]
+    flags = ["-Wall", "-Wextra", "-Werror", "-pedantic", "-Wconversion"]
+    src = tmp_path / "m.c"
+    src.write_text('#include <stdio.h>\n#include "manifold.h"\nint main(void) {\n'
+                   '  printf("%lu %lu %lu %lu\\n", (unsigned long)BOARD_STAGGER_TICKS, '
+                   '(unsigned long)PURGE2_START_OFFSET_TICKS, (unsigned long)DISP1_TIMER_PERIOD_COUNTS, '
+                   '(unsigned long)PURGE1_HOLD_COMPARE_COUNTS);\n  return 0;\n}\n')
+    subprocess.run([require_tool("gcc"), "-std=c99", *flags, str(src), "-o", str(tmp_path / "m")], check=True)
+    out = subprocess.run([str(tmp_path / "m")], capture_output=True, text=True, check=True).stdout.split()
+    purge = doc["channels"][5]
+    assert [int(x) for x in out] == [doc["stagger_ticks"], purge["offset_ticks"],
+                                     doc["timers"][0]["period_ticks"],
+                                     doc["channels"][4]["design"]["timer"]["compare_ticks"]]
+    for cc, target in (("arm-none-eabi-gcc", ["-mcpu=cortex-m4", "-mthumb"]), ("avr-gcc", ["-mmcu=atmega328p"])):
+        r = subprocess.run([require_tool(cc), *target, "-std=c99", *flags, "-c", str(src), "-o",
+                            str(tmp_path / f"{cc}.o")], capture_output=True, text=True)
+        assert r.returncode == 0, r.stderr
+
+
+def _system(tmp_path, text: str):
+    for name in ("dispense-valve-24v.toml", "purge-valve-24v.toml"):
+        (tmp_path / name).write_text((EXAMPLES / "manifold" / name).read_text())
+    p = tmp_path / "sys.toml"
+    p.write_text(text)
+    return p
+
+
+BASE = SYSTEM.read_text()
+
+
+@pytest.mark.parametrize("change, where", [
+    (('drive = "purge-valve-24v.toml"', 'drive = "missing.toml"'), "channel[4].drive"),
+    (('number = 6\n', 'number = 6\ncolour = "red"\n'), "channel[5].colour"),
+    (('current_limit = "3 A"', 'current_limit = "3 V"'), "supply.current_limit"),
+    (('number = 6\n', 'number = 5\n'), "channel[5].number"),
+])
+def test_bad_system_file_one_line_exit_2(tmp_path, change, where):
+    path = _system(tmp_path, BASE.replace(*change))
+    h = tmp_path / "out.h"
+    r = CliRunner().invoke(app, ["design", str(path), "--header", str(h)])
+    assert r.exit_code == 2, r.output
+    lines = r.stderr.strip().splitlines()
+    assert len(lines) == 1 and str(path) in lines[0] and where in lines[0], lines
+    assert not h.exists()
+
+
+def test_windows_that_do_not_overlap_name_the_channel(tmp_path):
+    path = _system(tmp_path, BASE)
+    purge = tmp_path / "purge-valve-24v.toml"
+    purge.write_text(purge.read_text().replace('frequency = "21 kHz"', 'frequency = "30 kHz"'))
+    p = run_cli("design", str(path))
+    assert p.returncode == 2
+    line = p.stderr.strip()
+    assert "\n" not in line and "'purge1'" in line and "do not overlap" in line, line
+
+
+def test_a_limit_no_stagger_meets_fails_without_header(tmp_path):
+    path = _system(tmp_path, BASE.replace('current_limit = "3 A"', 'current_limit = "2 A"'))
+    h = tmp_path / "out.h"
+    r = CliRunner().invoke(app, ["design", str(path), "--header", str(h), "--json"])
+    assert r.exit_code == 1
+    d = json.loads(r.stdout)
+    assert not d["ok"] and d["system"]["checks"][0]["name"] == "supply_current_limit"
+    assert not h.exists()
