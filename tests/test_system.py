@@ -214,3 +214,22 @@ def test_a_limit_no_stagger_meets_fails_without_header(tmp_path):
     d = json.loads(r.stdout)
     assert not d["ok"] and d["system"]["checks"][0]["name"] == "supply_current_limit"
     assert not h.exists()
+
+
+def test_simulate_system_csv(tmp_path, doc):
+    """simulate SYSTEM.toml (a real subprocess): a column per channel and the rail's
+    current, which stays within the limit at the highest supply and a cold coil."""
+    csv = tmp_path / "rail.csv"
+    p = run_cli("simulate", str(SYSTEM), "--supply", "28", "--coil-temp", "0", "--hold-time", "0.01",
+                "--csv", str(csv))
+    assert p.returncode == 0, p.stderr
+    head = csv.read_text().splitlines()[0].split(",")
+    assert head[:2] == ["time_s", "current_a"] and head[2:] == [f"{c['name']}_current_a" for c in doc["channels"]]
+    data = np.loadtxt(csv, delimiter=",", skiprows=1)
+    assert 0 < data[:, 1].max() <= doc["current_limit_a"]
+    assert np.all(data[:, 1] <= data[:, 2:].sum(axis=1) + 1e-9)   # a switch draws its coil's current or none
+
+
+def test_emulate_system_needs_a_channel():
+    r = CliRunner().invoke(app, ["emulate", str(SYSTEM), "--duration", "0.1"])
+    assert r.exit_code == 2 and "--channel" in r.stderr and "purge2" in r.stderr

@@ -83,7 +83,7 @@ def demo_command(
 
 @user_errors
 def simulate_command(
-    drive: Path = typer.Argument(..., help="Drive file (TOML)."),
+    drive: Path = typer.Argument(..., help="Drive file, or a system file of several channels (TOML)."),
     supply: str = typer.Option(..., "--supply", help='Bus voltage, e.g. 20 or "20 V".'),
     coil_temp: str = typer.Option(..., "--coil-temp", help='Coil temperature, e.g. 85 or "85 degC".'),
     csv: Path = typer.Option(..., "--csv", help="Write the waveform here (CSV)."),
@@ -109,6 +109,13 @@ def simulate_command(
             raise InputError(name, "", f"{f:g} must be greater than zero")
     if points < 2:
         raise InputError("--points", "", f"{points} is below 2, expected at least 2 samples per segment")
+    from ..system_file import is_system_file
+    if is_system_file(drive):
+        if plot is not None or r_factor != 1.0 or l_factor != 1.0:
+            raise InputError("--plot" if plot is not None else "--r-factor", "", "not used with a "
+                             "system file (each channel runs at the file's nominal coil)")
+        from .system_cmd import run_system_simulate
+        return run_system_simulate(drive, board, v, t, h, points, csv)
     d = design(load_drive(drive, board))
     if d.pull_in.peak_ticks is None:
         raise InputError(str(drive), "pull_in.current", f"{d.pull_in.not_reached}, so the design "

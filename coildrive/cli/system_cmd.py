@@ -50,3 +50,50 @@ def run_system_design(path: Path, board: Optional[str], as_json: bool, header: O
         from ..codegen.system_header import generate_system_header
         write_atomic(header, generate_system_header(result, prefix))
         status(f"wrote header {header}")
+
+
+def channel_drive(path: Path, board: Optional[str], name: Optional[str]):
+    """The drive of the channel ``name`` of a system file, with the system's shared timer
+    fixed in it (for ``emulate --channel``)."""
+    from ..design.system import system_drives
+
+    system = _load(path, board)
+    names = [c.name for c in system.channels]
+    if name is None:
+        raise InputError("--channel", "", f"missing: {path} is a system file, expected one of its "
+                         f"channels: {', '.join(names)}")
+    if name not in names:
+        raise InputError("--channel", "", f"{name!r} is not a channel of {path}, expected one of: "
+                         f"{', '.join(names)}")
+    return system_drives(system)[names.index(name)]
+
+
+def run_system_simulate(path: Path, board: Optional[str], supply: float, coil_temp: float,
+                        hold_time: float, points: int, csv: Path) -> None:
+    """Every channel's actuation at one operating point, each started at its offset: the
+    CSV has ``time_s``, ``current_a`` (the rail's current: each switch's current summed)
+    and a ``<name>_current_a`` coil current column per channel."""
+    import numpy as np
+
+    from ..design import actuation
+    from ..design.system import design_system
+
+    result = design_system(_load(path, board))
+    waves = []
+    for c in result.channels:
+        w = actuation(c.design, supply, coil_temp, hold_time, points=points)
+        waves.append((c, w.time + c.offset_s, w.current, w.switch_on))
+    t = np.unique(np.concatenate([w[1] for w in waves]))
+    cols, total = [], np.zeros_like(t)
+    for c, tw, i, on in waves:
+        cur = np.interp(t, tw, i, left=0.0, right=0.0)
+        k = np.searchsorted(tw, t, side="right") - 1
+        sw = np.where(k >= 0, on[np.clip(k, 0, None)], 0)
+        total += cur * sw
+        cols.append(cur)
+    names = ",".join(f"{c.name}_current_a" for c in result.channels)
+    rows = np.column_stack([t, total, *cols])
+    text = f"time_s,current_a,{names}\n" + "\n".join(",".join(f"{x:.9g}" for x in r) for r in rows) + "\n"
+    write_atomic(csv, text)
+    status(f"wrote {csv}: {len(t)} samples, {len(waves)} channels {result.stagger_ticks} ticks apart; "
+           f"rail current up to {total.max():.4g} A at {t[int(np.argmax(total))] * 1e3:.4g} ms")

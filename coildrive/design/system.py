@@ -23,6 +23,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import numpy as np
@@ -184,19 +185,14 @@ def find_stagger(params: list[dict], fixed: list[float | None], limit: float, ti
 
 
 # --------------------------------------------------------------------------- the system
-def design_system(system: System) -> SystemResult:
-    """Design every channel of ``system`` together (module docstring)."""
-    from . import design
-
+def system_drives(system: System) -> list:
+    """Each channel's drive with its shared timer fixed (the channels' order); a one-line
+    :class:`InputError` naming the channel a shared timer cannot serve."""
     board_ch = system.channels[0].drive.board.channels
     timer = system.channels[0].drive.board.timer
     channels = list(system.channels)
-    for ch in channels:
-        _refuse(system, ch)
-    checks: list[Check] = []
-    timers: list[dict] = []
     seen: set[tuple[int, ...]] = set()
-    for ch in channels:
+    for ch in system.channels:
         group = board_ch.group("timers", ch.number)
         members = [c for c in channels if c.number in group]
         if group in seen or len(members) < 2:
@@ -208,8 +204,30 @@ def design_system(system: System) -> SystemResult:
         got = shared_timer(timer.clock, timer.bits, timer.prescaler_max, timer.prescalers, windows)
         if isinstance(got, str):
             raise InputError(system.source, "channel", got)
-        p, n = got
-        channels = [with_timer(c, p, n) if c.number in group else c for c in channels]
+        channels = [with_timer(c, *got) if c.number in group else c for c in channels]
+    return [c.drive for c in channels]
+
+
+def design_system(system: System) -> SystemResult:
+    """Design every channel of ``system`` together (module docstring)."""
+    from . import design
+
+    board_ch = system.channels[0].drive.board.channels
+    timer = system.channels[0].drive.board.timer
+    channels = list(system.channels)
+    for ch in channels:
+        _refuse(system, ch)
+    checks: list[Check] = []
+    channels = [dataclasses.replace(c, drive=d) for c, d in zip(channels, system_drives(system))]
+    timers: list[dict] = []
+    seen: set[tuple[int, ...]] = set()
+    for ch in channels:
+        group = board_ch.group("timers", ch.number)
+        members = [c for c in channels if c.number in group]
+        if group in seen or len(members) < 2:
+            continue
+        seen.add(group)
+        p, n = members[0].drive.shared_timer
         timers.append({"channels": [c.name for c in members], "board_channels": list(group),
                        "prescaler": p, "period_ticks": n, "frequency_hz": timer.clock / (p * n),
                        "compare_ticks": {}})
