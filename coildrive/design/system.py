@@ -13,8 +13,9 @@
 * **the stagger** (:func:`draw_bound`, :func:`find_stagger`): the peaks start ``s`` apart
   (channel ``k`` of the file at ``k s``, or at its own ``offset``), ``s`` the least whole
   number of scheduler ticks that keeps the rail's current within ``[supply]
-  current_limit``; the rail's current is bounded above, channel by channel, in closed
-  form (docs/design-method.md, "Several channels");
+  current_limit``; the rail's current is bounded above in closed form, each channel by
+  one branch per peak its firmware may pick at the supplies that read as it, summed at a
+  common supply (docs/design-method.md, "Several channels");
 * **the droop** of the shared rail when the channels pull in together and staggered
   (:mod:`coildrive.model.shared_bus`), with the system's ``[supply]`` source resistance
   and bulk capacitance;
@@ -29,15 +30,12 @@ import math
 import numpy as np
 
 from ..errors import InputError
-from ..model import shared_bus
+from ..model import circuit, pwm, shared_bus
 from ..system_file import System, with_timer
+from . import envelope
+from .envelope import table_index
 from .result import Check, SystemChannel, SystemResult
 from .timer import MIN_PERIOD_TICKS, timer_for
-
-#: Pieces each interval between two switching moments is cut into by the bound's
-#: evaluation (the bound is rigorous for any number; more pieces make it tighter).
-PIECES = 48
-
 
 # --------------------------------------------------------------------------- shared timer
 def shared_timer(clock: float, bits: int, prescaler_max: int, allowed: tuple[int, ...],
@@ -74,55 +72,198 @@ def shared_timer(clock: float, bits: int, prescaler_max: int, allowed: tuple[int
 
 
 # --------------------------------------------------------------------------- the rail's current
+#: Longest piece (s) the rail's bound is cut into between switching moments: the bound is
+#: rigorous for any length; shorter pieces make it tighter (a rise of 1 A/ms over 10 us
+#: overstates by 10 mA).
+PIECE_S = 10e-6
+#: Parts the coil's inductance range is cut into for the tail after a peak (the bound
+#: holds for any number; more parts make it tighter).
+TAIL_SPLITS = 6
+
+
+def _branch_draw(t, b: dict):
+    """Upper bound (A) of one branch's draw ``t`` s after switch-on (arrays broadcast)."""
+    t = np.asarray(t, float)
+    rise = b["supply_v"] / b["resistance_ohm"] * -np.expm1(
+        -np.clip(t, 0.0, None) * b["resistance_ohm"] / b["inductance_h"])
+    age = np.clip(t - b["peak_s"] - b["pwm_period_s"], 0.0, None)
+    tail = b["hold_top_a"] + np.max([e * np.exp(-age * b["slow_resistance_ohm"] / l)
+                                     for e, l in zip(b["excess_a"], b["tail_inductance_h"])], axis=0)
+    return np.where(t < 0, 0.0, np.where(t <= b["peak_s"], rise, tail))
+
+
 def draw_bound(t, params: dict) -> np.ndarray:
     """Upper bound (A) of the current one channel draws from the rail ``t`` s after its
-    switch-on (0 before), from ``params`` (:func:`channel_bound_params`): during the peak
-    (``t <= peak_s``) the stiff-bus rise ``V/R (1 - exp(-t R/L))`` with the highest supply,
-    the lowest coil resistance and inductance; after it the hold's highest current plus
-    the excess the peak leaves, which decays at least as fast as ``exp(-R t/L)`` from the
-    end of the first PWM period: ``hold_top + excess min(1, exp(-(t - peak - T_pwm) rate))``."""
+    switch-on (0 before), from ``params`` (:func:`channel_bound_params`): the largest of
+    its branches, one for each peak the firmware may pick (a supply-table entry, or the one
+    peak), each at the highest supply that can be read as that entry. A branch: during
+    its peak (``t <= peak_s``) the stiff-bus rise ``V/R (1 - exp(-t R/L))`` with the coldest
+    loop resistance and the lowest inductance; after it the hold's top at that supply plus
+    the excess the peak leaves, which decays at least as fast as ``exp(-R t/L_max)`` from
+    the end of the first PWM period: ``hold_top + excess min(1, exp(-(t - peak - T_pwm) rate))``."""
     t = np.asarray(t, float)
-    v, r, l, tp = params["supply_v"], params["resistance_ohm"], params["inductance_h"], params["peak_s"]
-    rise = v / r * -np.expm1(-np.clip(t, 0.0, None) * r / l)
-    age = t - tp - params["pwm_period_s"]
-    tail = params["hold_top_a"] + params["excess_a"] * np.exp(-np.clip(age, 0.0, None) * params["rate_per_s"])
-    return np.where(t < 0, 0.0, np.where(t <= tp, rise, tail))
+    return np.max([_branch_draw(t, b) for b in params["branches"]], axis=0)
 
 
-def channel_bound_params(d) -> dict:
-    """The figures of a channel's Design that :func:`draw_bound` reads (SI)."""
-    rc = min(c.resistance_ohm for c in d.corners)
-    lmin = min(c.inductance_h for c in d.corners)
-    lmax = max(c.inductance_h for c in d.corners)
-    v = d.drive.supply.max
-    tp = d.pull_in.peak_ticks / d.drive.board.tick.rate
-    i_pe = v / rc * -math.expm1(-tp * rc / lmin)
-    low = d.hold.min_mean_current_a - d.hold.ripple_a
-    return {"supply_v": v, "resistance_ohm": rc, "inductance_h": lmin, "peak_s": tp,
-            "peak_end_a": i_pe, "hold_top_a": d.hold.max_mean_current_a + d.hold.ripple_a,
-            "excess_a": max(0.0, i_pe - low), "rate_per_s": rc / lmax,
-            "pwm_period_s": 1.0 / d.hold.frequency_hz}
+def _tables(d):
+    """``(peak entries, duty lookup)`` of what the firmware runs: ``[(code or None, ticks)]``
+    and a function of supply-sense codes giving the hold's duty."""
+    pt = d.peak_table
+    peaks = ([(c, t) for c, t in zip(pt.adc_codes, pt.peak_ticks)] if pt is not None
+             else [(None, d.pull_in.peak_ticks)])
+    dt = d.duty_table
+    if d.hold.regulation == "supply_table" and dt.adc_codes:
+        comp = np.asarray(dt.compare_ticks, float) / d.timer.period_ticks
+        codes = list(dt.adc_codes)
+        return peaks, codes, lambda code: comp[table_index(codes, code)]
+    return peaks, [], lambda code: np.full(np.shape(code), d.hold.duty)
 
 
-def total_bound(params: list[dict], offsets) -> tuple[float, float]:
-    """``(upper bound A, time s)`` of the largest sum of :func:`draw_bound` over the
-    channels started at ``offsets`` (s): between two switching moments every rise only
-    grows and every tail only falls, so on each of :data:`PIECES` pieces ``[u, w]`` the sum
-    is at most the rises at ``w`` plus the rest at ``u``."""
+def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
+    """The branches of a channel's rail-current bound (SI; :func:`draw_bound`), from its
+    Design, when the firmware's supply reading may sit ``reading_droop_v`` below the
+    source's voltage (the shared rail's droop at the moment it reads).
+
+    For each peak the firmware may pick (each supply-table entry ``e``, or the one peak):
+    the supplies ``V`` that can be read as ``e`` -- from the lowest that reads its code
+    with the divider reading high (:func:`~coildrive.design.envelope.lowest_supply_for_code`)
+    to the highest whose lowest reading (the divider reading low, the ADC truncating,
+    ``reading_droop_v`` lower) is still below the next entry's code
+    (:func:`~coildrive.design.envelope.bracket_tops`), within ``[supply] min..max``. The
+    rise and the hold only grow with ``V`` at a fixed peak and duty, so the branch takes
+    the top of that range: the peak's rise with the coldest coil (``ambient.min``) at its
+    lowest resistance and inductance, and the hold's orbit top (the highest over every
+    tolerance corner, cold coil) at the highest duty readable there -- the duty entry read
+    low, at the top of the range and just below each duty-table step inside it. The excess
+    over the orbit's bottom is taken against the lowest bottom in the range (its lowest
+    supply and readable duty, the hottest coil of the design's corners)."""
+    drive = d.drive
+    b = drive.board
+    rate_tick = b.tick.rate
+    v_min, v_max = drive.supply.min, drive.supply.max
+    f = d.hold.frequency_hz
+    tol = envelope.tolerances(drive)
+    factors = {"diode_factor": tol.diode_factor, "fast_factor": tol.fast_factor,
+               "sense_factor": tol.sense_factor}
+    t_cold = drive.ambient.min
+    t_hot = max(c.coil_temp_c for c in d.corners)
+    peaks, duty_codes, duty_of = _tables(d)
+
+    def low_code(v):         # the lowest code the firmware may read at source voltage v (just below it)
+        if b.supply_sense is None:
+            return np.zeros(np.shape(v), int)
+        return envelope.supply_codes(drive, np.maximum((np.asarray(v) - reading_droop_v) * (1 - 1e-9), 0.0))[0]
+
+    def high_code(v):
+        if b.supply_sense is None:
+            return np.zeros(np.shape(v), int)
+        return envelope.supply_codes(drive, v)[1]
+
+    def loops(v, temp):
+        return circuit.loop(drive, v, temp, tol.r_factor, tol.l_factor, **factors)
+
+    def top_of(code):        # highest source voltage whose lowest reading is below ``code``
+        step = envelope.supply_lsb(drive) * (1.0 + b.supply_sense.divider_tolerance)
+        return code * step + reading_droop_v
+
+    branches = []
+    for e, (code, ticks) in enumerate(peaks):
+        lo = v_min if (code is None or e == 0) else max(v_min, float(envelope.lowest_supply_for_code(drive, code)))
+        hi = v_max if e == len(peaks) - 1 else min(v_max, top_of(peaks[e + 1][0]))
+        if lo > v_max or hi < v_min or hi < lo:
+            continue
+        cands = [hi] + [top_of(c) for c in duty_codes[1:] if lo < top_of(c) < hi] if duty_codes else [hi]
+        cold = loops(np.array(cands)[:, None], t_cold)
+        duty_hi = np.asarray(duty_of(low_code(np.array(cands))), float)[:, None]
+        orbit = pwm.pwm_steady_state(duty_hi, f, cold.v_on, cold.r_on, cold.r_off, cold.v_off, cold.inductance)
+        hot = loops(lo, t_hot)
+        duty_lo = float(duty_of(high_code(np.array([hi])))[0])
+        bottom = float(np.min(pwm.pwm_steady_state(duty_lo, f, hot.v_on, hot.r_on, hot.r_off, hot.v_off,
+                                                   hot.inductance).i_min))
+        top_cold = loops(hi, t_cold)
+        r_on = float(np.min(top_cold.r_on))
+        l_min, l_max = float(np.min(top_cold.inductance)), float(np.max(top_cold.inductance))
+        r_slow = float(np.min(np.minimum(top_cold.r_on, top_cold.r_off)))
+        tp = ticks / rate_tick
+        # the inductance range in TAIL_SPLITS parts: a part's excess at its lowest L, its
+        # decay at its highest
+        ends = np.linspace(l_min, l_max, TAIL_SPLITS + 1) if l_max > l_min else np.array([l_min, l_min])
+        i_pe = hi / r_on * -np.expm1(-tp * r_on / ends[:-1])
+        branches.append({"supply_v": hi, "supply_low_v": lo, "resistance_ohm": r_on, "inductance_h": l_min,
+                         "peak_s": tp, "peak_end_a": float(i_pe[0]), "hold_top_a": float(np.max(orbit.i_max)),
+                         "excess_a": [max(0.0, float(x) - bottom) for x in i_pe],
+                         "tail_inductance_h": [float(x) for x in ends[1:]],
+                         "slow_resistance_ohm": r_slow, "pwm_period_s": 1.0 / f})
+    return {"reading_droop_v": reading_droop_v, "branches": branches,
+            "peak_s": max(x["peak_s"] for x in branches),
+            "pwm_period_s": 1.0 / f,
+            "hold_top_a": max(x["hold_top_a"] for x in branches),
+            "excess_a": max(x["excess_a"][0] for x in branches),
+            "top_a": max(x["hold_top_a"] + x["excess_a"][0] for x in branches),
+            "rate_per_s": min(x["slow_resistance_ohm"] / x["tail_inductance_h"][-1] for x in branches)}
+
+
+def supply_cells(params: list[dict]) -> list[list[list[int]]]:
+    """The rail's supply range cut where any channel's branch range
+    (``supply_low_v..supply_v``) starts or ends: for each cell, each channel's branches
+    readable inside it (all of them where the cell is outside the channel's own range).
+    Every channel on a rail sees the same source voltage, so the rail's current at a
+    supply in a cell is at most the sum over the channels of their largest readable
+    branch there. Cells with the same branches are given once."""
+    edges = sorted({x for p in params for b in p["branches"] for x in (b["supply_low_v"], b["supply_v"])})
+    if len(edges) < 2:
+        edges = edges * 2
+    cells, seen = [], set()
+    for a, z in zip(edges[:-1], edges[1:]):
+        if z <= a and len(edges) > 2:
+            continue
+        cell = []
+        for p in params:
+            got = [j for j, b in enumerate(p["branches"])
+                   if (b["supply_low_v"] < z and b["supply_v"] > a) or b["supply_low_v"] == b["supply_v"]]
+            cell.append(got or list(range(len(p["branches"]))))
+        key = tuple(tuple(c) for c in cell)
+        if key not in seen:
+            seen.add(key)
+            cells.append(cell)
+    return cells
+
+
+def total_bound(params: list[dict], offsets, cells=None) -> tuple[float, float]:
+    """``(upper bound A, time s)`` of the rail's current with the channels started at
+    ``offsets`` (s): between two switching moments (a switch-on, a branch's peak end, the
+    end of its first PWM period) every branch's rise only grows and its tail only falls,
+    so on each piece ``[u, w]`` (at most :data:`PIECE_S` long) a branch draws at most its
+    rise at ``w`` or the rest at ``u``; the rail, at a supply in one of the
+    :func:`supply_cells` (``cells``, computed when not given), at most the sum over the
+    channels of their largest branch readable there; the bound is the largest over the
+    cells and pieces."""
     offsets = np.asarray(offsets, float)
-    ends = np.array([o + p["peak_s"] for o, p in zip(offsets, params)])
-    grace = np.array([o + p["peak_s"] + p["pwm_period_s"] for o, p in zip(offsets, params)])
-    moments = np.unique(np.concatenate([offsets, ends, grace, [offsets.max() + ends.max()]]))
-    frac = np.linspace(0.0, 1.0, PIECES + 1)
-    u = (moments[:-1, None] + np.outer(np.diff(moments), frac[:-1])).ravel()
-    w = (moments[:-1, None] + np.outer(np.diff(moments), frac[1:])).ravel()
-    mid = 0.5 * (u + w)
-    total = np.zeros_like(u)
+    cells = supply_cells(params) if cells is None else cells
+    marks = [offsets]
     for o, p in zip(offsets, params):
-        rising = (mid > o) & (mid < o + p["peak_s"])
-        total += np.where(rising, draw_bound(w - o, p), draw_bound(u - o, p))
-    k = int(np.argmax(total))
-    return float(total[k]), float(u[k])
+        for b in p["branches"]:
+            marks += [[o + b["peak_s"], o + b["peak_s"] + b["pwm_period_s"]]]
+    moments = np.unique(np.concatenate(marks))
+    moments = np.append(moments, moments[-1] + PIECE_S)
+    count = np.maximum(np.ceil(np.diff(moments) / PIECE_S).astype(int), 1)
+    start = np.repeat(moments[:-1], count)
+    step = np.repeat(np.diff(moments) / count, count)
+    k_in = np.arange(len(start)) - np.repeat(np.cumsum(count) - count, count)
+    u = start + k_in * step
+    w = u + step
+    mid = 0.5 * (u + w)
+    rows = []
+    for o, p in zip(offsets, params):
+        rows.append(np.array([np.where((mid > o) & (mid < o + b["peak_s"]), _branch_draw(w - o, b),
+                                       _branch_draw(u - o, b)) for b in p["branches"]]))
+    best, when = -1.0, 0.0
+    for cell in cells:
+        total = sum(r[idx].max(axis=0) for r, idx in zip(rows, cell))
+        k = int(np.argmax(total))
+        if total[k] > best:
+            best, when = float(total[k]), float(u[k])
+    return best, when
 
 
 def stagger_bound(params: list[dict], positions: list[int], fixed: list[float | None],
@@ -150,7 +291,7 @@ def stagger_bound(params: list[dict], positions: list[int], fixed: list[float | 
     holds = sum(params[k]["hold_top_a"] for k in still)
     l_inf, worst = top_still, "the channels that start at fixed times, together"
     for k in moving:
-        peak = params[k]["hold_top_a"] + params[k]["excess_a"]
+        peak = params[k]["top_a"]
         if peak + holds > l_inf:
             l_inf, worst = peak + holds, f"a peak on the hold currents of the channels before it"
         holds += params[k]["hold_top_a"]
@@ -241,11 +382,14 @@ def design_system(system: System) -> SystemResult:
             raise InputError(c.drive.source, "pull_in.current",
                              f"channel {c.name!r}: {d.pull_in.not_reached}, so it has no peak to stagger")
     tick = 1.0 / channels[0].drive.board.tick.rate
-    params = [channel_bound_params(d) for d in designs]
     rails = _rails(board_ch, channels)
     limit = system.supply.current_limit
+    r_s = system.supply.source_resistance
+    # the firmware reads the rail drooped by at most R_s x the rail's current so far: within
+    # the limit, R_s x limit (docs/design-method.md, "Several channels")
+    params = [channel_bound_params(d, r_s * limit) for d in designs]
     fixed = [None if c.offset is None else math.ceil(c.offset / tick - 1e-9) * tick for c in channels]
-    together = {name: total_bound([params[k] for k in ks], [0.0] * len(ks))[0] for name, ks in rails.items()}
+    together = {name: _together(designs, ks, r_s) for name, ks in rails.items()}
     if limit > 0:
         stagger, how = find_stagger(params, fixed, limit, tick, list(rails.values()))
         checks.append(Check("supply_current_limit", stagger is not None,
@@ -274,6 +418,27 @@ def design_system(system: System) -> SystemResult:
                  for name, ks in rails.items()]
     return SystemResult(system.name, system.source, channels[0].drive.board.name, limit, s,
                         how, timers, rail_rows, heat, out, checks)
+
+
+def _together(designs, ks: list[int], r_s: float) -> float:
+    """The rail's current bound (A) with the peaks of the channels ``ks`` together. With a
+    source resistance the readings droop by ``R_s`` x the rail's current, which this bound
+    is itself of: a droop ``delta`` with ``R_s x bound(delta) <= delta`` is consistent (the
+    rail cannot pass the bound before a reading sees more droop), found from 0 upwards;
+    if it does not settle in a few steps, the droop of every channel's ``V_max/R``."""
+    def bound(delta: float) -> float:
+        return total_bound([channel_bound_params(designs[k], delta) for k in ks], [0.0] * len(ks))[0]
+    got = bound(0.0)
+    if not r_s > 0:
+        return got
+    delta = 0.0
+    for _ in range(6):
+        delta = r_s * got * (1 + 1e-3) + 1e-6
+        got = bound(delta)
+        if r_s * got <= delta:
+            return got
+    ceiling = sum(designs[k].drive.supply.max / min(c.resistance_ohm for c in designs[k].corners) for k in ks)
+    return bound(r_s * ceiling)
 
 
 def _refuse(system: System, ch) -> None:

@@ -41,7 +41,7 @@ def print_system(r: SystemResult) -> None:
     for rail in r.rails:
         names = ", ".join(rail["channels"])
         s.add_row("rail current, peaks together", f"<= {rail['peak_current_together_a']:.4g} A",
-                  escape(f"bound, highest supply, coldest coils ({names})"))
+                  escape(f"bound over the supply range, coldest coils ({names})"))
         s.add_row("rail current, staggered", f"<= {rail['peak_current_staggered_a']:.4g} A",
                   escape(f"bound; highest {format_si(rail['peak_current_time_s'], 's')} after the first "
                          "switch-on"))
