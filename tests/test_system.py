@@ -312,3 +312,31 @@ def test_simulate_system_csv(tmp_path, doc):
 def test_emulate_system_needs_a_channel():
     r = CliRunner().invoke(app, ["emulate", str(SYSTEM), "--duration", "0.1"])
     assert r.exit_code == 2 and "--channel" in r.stderr and "purge2" in r.stderr
+
+
+def test_plot_arrays_follow_the_result(tmp_path):
+    """design SYSTEM.toml --plot: the PNG is written, and the arrays it draws
+    (:func:`rail_curves`) are the result's -- each channel zero before its start, the
+    rail's total their sum, never above the result's bound and within 2 % of it (the
+    bound is of the pieces, the curve samples them), staggered and together."""
+    from coildrive.design.system import design_system, rail_curves
+    from coildrive.system_file import load_system
+
+    png = tmp_path / "rail.png"
+    r = CliRunner().invoke(app, ["design", str(SYSTEM), "--plot", str(png)])
+    assert r.exit_code == 0, r.output
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    result = design_system(load_system(SYSTEM))
+    (rail,) = rail_curves(result)
+    assert rail["limit_a"] == result.current_limit_a and rail["channels"] == [c.name for c in result.channels]
+    for view, key in (("staggered", "peak_current_staggered_a"), ("together", "peak_current_together_a")):
+        c = rail[view]
+        bound = result.rails[0][key]
+        assert c["bound_a"] == bound
+        assert np.allclose(c["total_a"], np.sum(c["channel_a"], axis=0), rtol=0, atol=1e-12)
+        assert c["total_a"].max() <= bound + 1e-12 and c["total_a"].max() >= 0.98 * bound, (view, c["total_a"].max(), bound)
+        want = [ch.offset_s for ch in result.channels] if view == "staggered" else [0.0] * len(result.channels)
+        assert c["offsets_s"] == want
+        for o, cur in zip(want, c["channel_a"]):
+            assert np.all(cur[c["time_s"] < o] == 0) and cur[c["time_s"] > o + 1e-4].min() > 0
+    assert rail["staggered"]["total_a"].max() <= result.current_limit_a < rail["together"]["total_a"].max()

@@ -29,8 +29,6 @@ def run_system_design(path: Path, board: Optional[str], as_json: bool, header: O
     if samples:
         raise InputError("--samples", "", "the Monte Carlo runs on one drive file, expected it "
                          "left out with a system file")
-    if plot is not None:
-        raise InputError("--plot", "", "not drawn for a system file yet: plot a channel's drive file")
     system = _load(path, board)
     prefix = "BOARD" if prefix == "COIL" else prefix
     if header is not None:
@@ -42,6 +40,8 @@ def run_system_design(path: Path, board: Optional[str], as_json: bool, header: O
     else:
         from ..design.system_report import print_system
         print_system(result)
+    if plot is not None:
+        _write_plot(result, plot)
     if not result.ok:
         if header is not None:
             status(f"header {header} not written: the system fails " + ", ".join(result.failed))
@@ -50,6 +50,14 @@ def run_system_design(path: Path, board: Optional[str], as_json: bool, header: O
         from ..codegen.system_header import generate_system_header
         write_atomic(header, generate_system_header(result, prefix))
         status(f"wrote header {header}")
+
+
+def _write_plot(result, plot: Path) -> None:
+    from ..design.system import rail_curves
+    from ..design.system_plot import plot_system
+
+    write_atomic(plot, plot_system(result.name, rail_curves(result)))
+    status(f"wrote plot {plot}")
 
 
 def channel_drive(path: Path, board: Optional[str], name: Optional[str]):

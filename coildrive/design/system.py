@@ -203,10 +203,10 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             "rate_per_s": min(x["slow_resistance_ohm"] / x["tail_inductance_h"][-1] for x in branches)}
 
 
-def supply_cells(params: list[dict]) -> list[list[list[int]]]:
+def supply_cells(params: list[dict]) -> list[tuple[float, float, list[list[int]]]]:
     """The rail's supply range cut where any channel's branch range
-    (``supply_low_v..supply_v``) starts or ends: for each cell, each channel's branches
-    readable inside it (all of them where the cell is outside the channel's own range).
+    (``supply_low_v..supply_v``) starts or ends: for each cell ``(low V, high V,
+    branches)``, each channel's branches readable inside it (all of them where the cell is outside the channel's own range).
     Every channel on a rail sees the same source voltage, so the rail's current at a
     supply in a cell is at most the sum over the channels of their largest readable
     branch there. Cells with the same branches are given once."""
@@ -225,7 +225,7 @@ def supply_cells(params: list[dict]) -> list[list[list[int]]]:
         key = tuple(tuple(c) for c in cell)
         if key not in seen:
             seen.add(key)
-            cells.append(cell)
+            cells.append((a, z, cell))
     return cells
 
 
@@ -258,7 +258,7 @@ def total_bound(params: list[dict], offsets, cells=None) -> tuple[float, float]:
         rows.append(np.array([np.where((mid > o) & (mid < o + b["peak_s"]), _branch_draw(w - o, b),
                                        _branch_draw(u - o, b)) for b in p["branches"]]))
     best, when = -1.0, 0.0
-    for cell in cells:
+    for _, _, cell in cells:
         total = sum(r[idx].max(axis=0) for r, idx in zip(rows, cell))
         k = int(np.argmax(total))
         if total[k] > best:
@@ -411,7 +411,9 @@ def design_system(system: System) -> SystemResult:
                          c.offset is not None, params[k], d)
            for k, (c, d) in enumerate(zip(channels, designs))]
     rail_rows = [{"channels": [channels[k].name for k in ks], "board_channels": list(name),
-                  "peak_current_together_a": together[name],
+                  "peak_current_together_a": together[name][0],
+                  "together_reading_droop_v": together[name][1],
+                  "staggered_reading_droop_v": r_s * limit,
                   "peak_current_staggered_a": staggered[name][0],
                   "peak_current_time_s": staggered[name][1],
                   "hold_average_current_a": hold_avg[name], **droop.get(name, {})}
@@ -420,25 +422,61 @@ def design_system(system: System) -> SystemResult:
                         how, timers, rail_rows, heat, out, checks)
 
 
-def _together(designs, ks: list[int], r_s: float) -> float:
-    """The rail's current bound (A) with the peaks of the channels ``ks`` together. With a
-    source resistance the readings droop by ``R_s`` x the rail's current, which this bound
-    is itself of: a droop ``delta`` with ``R_s x bound(delta) <= delta`` is consistent (the
-    rail cannot pass the bound before a reading sees more droop), found from 0 upwards;
-    if it does not settle in a few steps, the droop of every channel's ``V_max/R``."""
+def _together(designs, ks: list[int], r_s: float) -> tuple[float, float]:
+    """``(bound A, reading droop V)`` of the rail's current with the peaks of the channels
+    ``ks`` together. With a source resistance the readings droop by ``R_s`` x the rail's
+    current, which this bound is itself of: a droop ``delta`` with ``R_s x bound(delta) <=
+    delta`` is consistent (the rail cannot pass the bound before a reading sees more
+    droop), found from 0 upwards; if it does not settle in a few steps, the droop of every
+    channel's ``V_max/R``."""
     def bound(delta: float) -> float:
         return total_bound([channel_bound_params(designs[k], delta) for k in ks], [0.0] * len(ks))[0]
     got = bound(0.0)
     if not r_s > 0:
-        return got
+        return got, 0.0
     delta = 0.0
     for _ in range(6):
         delta = r_s * got * (1 + 1e-3) + 1e-6
         got = bound(delta)
         if r_s * got <= delta:
-            return got
-    ceiling = sum(designs[k].drive.supply.max / min(c.resistance_ohm for c in designs[k].corners) for k in ks)
-    return bound(r_s * ceiling)
+            return got, delta
+    delta = r_s * sum(designs[k].drive.supply.max / min(c.resistance_ohm for c in designs[k].corners)
+                      for k in ks)
+    return bound(delta), delta
+
+
+def rail_curves(result: SystemResult, points: int = 6000) -> list[dict]:
+    """What ``design SYSTEM.toml --plot`` draws, per rail: the bound of each channel's draw
+    and of the rail's current against time (s after the first switch-on), staggered as
+    designed and with the peaks together, each at the supply cell of :func:`supply_cells`
+    where the total is highest (its channels' largest readable branches there); the
+    limit (A, 0 = none). Arrays on ``points`` instants; never above the result's bound."""
+    by_name = {c.name: c for c in result.channels}
+    out = []
+    for rail in result.rails:
+        chans = [by_name[n] for n in rail["channels"]]
+        views = {}
+        for view, params, offsets in (
+                ("staggered", [c.bound for c in chans], [c.offset_s for c in chans]),
+                ("together", [channel_bound_params(c.design, rail["together_reading_droop_v"])
+                              for c in chans], [0.0] * len(chans))):
+            end = max(o + p["peak_s"] for o, p in zip(offsets, params)) * 1.25 + 1e-3
+            t = np.linspace(0.0, end, points)
+            rows = [np.array([_branch_draw(t - o, b) for b in p["branches"]]) for o, p in zip(offsets, params)]
+            best = None
+            for low, high, cell in supply_cells(params):
+                each = [r[idx].max(axis=0) for r, idx in zip(rows, cell)]
+                total = np.sum(each, axis=0)
+                if best is None or total.max() > best[1].max():
+                    best = (each, total, (low, high))
+            each, total, cell_v = best
+            views[view] = {"time_s": t, "channel_a": each, "total_a": total,
+                           "offsets_s": list(offsets), "supply_v": cell_v,
+                           "bound_a": rail["peak_current_staggered_a" if view == "staggered"
+                                           else "peak_current_together_a"]}
+        out.append({"channels": list(rail["channels"]), "limit_a": result.current_limit_a,
+                    "stagger_ticks": result.stagger_ticks, **views})
+    return out
 
 
 def _refuse(system: System, ch) -> None:
