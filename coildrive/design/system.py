@@ -16,9 +16,9 @@
   current_limit``; the rail's current is bounded above in closed form, each channel by
   one branch per peak its firmware may pick at the supplies that read as it, summed at a
   common supply (docs/design-method.md, "Several channels");
-* **the droop** of the shared rail when the channels pull in together and staggered
-  (:mod:`coildrive.model.shared_bus`), with the system's ``[supply]`` source resistance
-  and bulk capacitance;
+* **the droop** of the shared rail when the channels pull in together and staggered,
+  their PWM holds included (:mod:`coildrive.model.shared_bus`), with the system's
+  ``[supply]`` source resistance and bulk capacitance;
 * **the heat** in the shared freewheel parts and in the board.
 """
 
@@ -507,31 +507,57 @@ def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:
 
 
 def _droop(system: System, channels, designs, rails, offsets) -> dict:
-    """The shared rail's lowest bus over the peaks, together and staggered, at the lowest
-    supply with each coil at its lowest resistance and inductance (the most current)."""
+    """The shared rail's lowest bus, the peaks together and staggered, at the lowest supply
+    with each coil at the corner of the most current (cold, lowest resistance, inductance
+    and freewheel drop): every peak and every hold's PWM on the shared timer, the duty the
+    firmware reads there (the reading low: the highest); up to the last peak's end plus
+    five ``R_s C`` and two PWM periods. A hold whose off-times go through a clamp across
+    the switch draws from the rail while off too: then the peaks alone."""
     s = system.supply
     if not s.source_resistance > 0:
         return {}
     out = {}
     for name, ks in rails.items():
-        r, l, tp = [], [], []
+        r_on, r_off, v_off, l, tp, duty = [], [], [], [], [], []
+        clamp = False
         for k in ks:
             d = designs[k]
             drv = d.drive
-            extra = drv.switch.on_resistance + drv.board.sense.resistance
-            r.append(min(c.resistance_ohm for c in d.corners) + extra)
-            l.append(min(c.inductance_h for c in d.corners))
+            v = drv.supply.min
+            tol = envelope.tolerances(drv)
+            lp = circuit.loop(drv, v, drv.ambient.min, tol.r_factor, tol.l_factor,
+                              diode_factor=tol.diode_factor, fast_factor=tol.fast_factor,
+                              sense_factor=tol.sense_factor)
+            clamp = clamp or (drv.freewheel.type == "clamp" and not lp.bypassed)
+            r_on.append(float(np.min(lp.r_on)))
+            r_off.append(float(np.min(lp.r_off)))
+            v_off.append(float(np.min(lp.v_off)))
+            l.append(float(np.min(lp.inductance)))
             tp.append(d.pull_in.peak_ticks / drv.board.tick.rate)
+            low = envelope.supply_codes(drv, v)[0] if drv.board.supply_sense is not None else 0
+            duty.append(float(_tables(d)[2](np.asarray(low))))
         v = channels[ks[0]].drive.supply.min
-        low0, when0 = shared_bus.lowest_bus(v, s.source_resistance, s.capacitance, r, l,
-                                            [0.0] * len(ks), tp)
-        on = [offsets[k] for k in ks]
-        low1, when1 = shared_bus.lowest_bus(v, s.source_resistance, s.capacitance, r, l, on,
-                                            [o + t for o, t in zip(on, tp)])
+        period = max(1.0 / designs[k].hold.frequency_hz for k in ks)
+        on_s = [offsets[k] for k in ks]
+        rows = {}
+        for view, on in (("together", [0.0] * len(ks)), ("staggered", on_s)):
+            ends = [o + t for o, t in zip(on, tp)]
+            if clamp:
+                low, when = shared_bus.lowest_bus(v, s.source_resistance, s.capacitance, r_on, l, on, ends)
+            else:
+                t_end = max(ends) + 5 * s.source_resistance * s.capacitance + 2 * period
+                low, when = shared_bus.lowest_bus_pwm(v, s.source_resistance, s.capacitance, r_on, r_off,
+                                                      v_off, l, on, ends, duty, period, t_end)
+            rows[view] = (low, float(when))
         out[name] = {"supply_v": v, "source_resistance_ohm": s.source_resistance,
-                     "capacitance_f": s.capacitance, "lowest_bus_together_v": low0,
-                     "lowest_bus_together_time_s": float(when0), "lowest_bus_staggered_v": low1,
-                     "lowest_bus_staggered_time_s": float(when1),
+                     "capacitance_f": s.capacitance,
+                     "lowest_bus_together_v": rows["together"][0],
+                     "lowest_bus_together_time_s": rows["together"][1],
+                     "lowest_bus_staggered_v": rows["staggered"][0],
+                     "lowest_bus_staggered_time_s": rows["staggered"][1],
+                     "droop_method": ("the peaks alone (a hold through a clamp across the switch draws "
+                                      "from the rail while off)" if clamp else
+                                      "every peak and every hold's PWM on the shared timer, exact"),
                      "hold_droop_v": s.source_resistance * sum(
                          designs[k].hold.max_mean_current_a * designs[k].hold.duty for k in ks)}
     return out

@@ -53,8 +53,8 @@ def print_system(r: SystemResult) -> None:
                              f"{rail['capacitance_f'] * 1e6:.4g} uF, at "
                              f"{format_si(rail['lowest_bus_together_time_s'], 's')}"))
             s.add_row("lowest bus, staggered", f"{rail['lowest_bus_staggered_v']:.4g} V",
-                      escape(f"at {format_si(rail['lowest_bus_staggered_time_s'], 's')}; hold droop "
-                             f"{rail['hold_droop_v'] * 1e3:.4g} mV"))
+                      escape(f"at {format_si(rail['lowest_bus_staggered_time_s'], 's')}; {rail['droop_method']}; "
+                             f"hold droop (average) {rail['hold_droop_v'] * 1e3:.4g} mV"))
     for g in r.heat["shared_freewheel"]:
         s.add_row("shared freewheel part", f"{g['power_w']:.3g} W", escape(", ".join(g["channels"])))
     s.add_row("board heat", f"{r.heat['board_w']:.3g} W",
