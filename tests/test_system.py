@@ -329,6 +329,11 @@ def test_a_limit_no_stagger_meets_fails_without_header(tmp_path):
     d = json.loads(r.stdout)
     assert not d["ok"] and d["system"]["checks"][0]["name"] == "supply_current_limit"
     assert not h.exists()
+    # beyond the limit the readings may droop more: each figure's droop is consistent with it
+    rail = d["system"]["rails"][0]
+    for view in ("together", "staggered"):
+        got = rail[f"peak_current_{view}_a"]
+        assert rail["source_resistance_ohm"] * got <= rail[f"{view}_reading_droop_v"], (view, rail)
 
 
 def test_simulate_system_csv(tmp_path, doc):

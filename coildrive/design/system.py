@@ -194,9 +194,16 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
                          "excess_a": [max(0.0, float(x) - bottom) for x in i_pe],
                          "tail_inductance_h": [float(x) for x in ends[1:]],
                          "slow_resistance_ohm": r_slow, "pwm_period_s": 1.0 / f})
-    return {"reading_droop_v": reading_droop_v, "branches": branches,
+    return {"reading_droop_v": reading_droop_v, **_summary(branches)}
+
+
+def _summary(branches: list[dict]) -> dict:
+    """``branches`` and what :func:`stagger_bound` reads of them: the longest peak, the
+    PWM period, the highest hold top, the largest excess, the highest hold top plus excess
+    and the slowest decay rate (1/s)."""
+    return {"branches": branches,
             "peak_s": max(x["peak_s"] for x in branches),
-            "pwm_period_s": 1.0 / f,
+            "pwm_period_s": max(x["pwm_period_s"] for x in branches),
             "hold_top_a": max(x["hold_top_a"] for x in branches),
             "excess_a": max(x["excess_a"][0] for x in branches),
             "top_a": max(x["hold_top_a"] + x["excess_a"][0] for x in branches),
@@ -279,7 +286,22 @@ def stagger_bound(params: list[dict], positions: list[int], fixed: list[float | 
     ``L_inf + sum_j excess_j exp(-(s - W) rate_j)``; ``L_inf`` is the worst of the still
     channels' own sum and each moving channel's highest draw on the hold currents of the
     channels started before it. So ``s >= W + max_j ln(n excess_j / (limit - L_inf)) /
-    rate_j`` is within the limit."""
+    rate_j`` is within the limit. The rail shares one supply: this is done in each of the
+    :func:`supply_cells` with the channels' branches readable there, and the largest
+    ``S_hi`` taken."""
+    s_hi = 0.0
+    for lo, hi, cell in supply_cells(params):
+        got, why = _stagger_bound_cell([_summary([p["branches"][j] for j in idx]) for p, idx in zip(params, cell)],
+                                       positions, fixed, limit)
+        if got is None:
+            return None, f"{why} (supply {lo:.4g}..{hi:.4g} V)"
+        s_hi = max(s_hi, got)
+    return s_hi, ""
+
+
+def _stagger_bound_cell(params: list[dict], positions: list[int], fixed: list[float | None],
+                        limit: float) -> tuple[float | None, str]:
+    """:func:`stagger_bound` with every channel's branches readable at one supply."""
     n = len(params)
     moving = sorted((k for k in range(n) if fixed[k] is None and positions[k] > 0),
                     key=lambda k: positions[k])
@@ -296,7 +318,8 @@ def stagger_bound(params: list[dict], positions: list[int], fixed: list[float | 
             l_inf, worst = peak + holds, f"a peak on the hold currents of the channels before it"
         holds += params[k]["hold_top_a"]
     if not l_inf < limit:
-        return None, f"{l_inf:.4g} A at any stagger ({worst}), not below the limit {limit:.4g} A"
+        return None, (f"the bound stays at {l_inf:.4g} A at any stagger ({worst}), not below the "
+                      f"limit {limit:.4g} A")
     margin = limit - l_inf
     extra = max([math.log(n * p["excess_a"] / margin) / p["rate_per_s"] for p in params
                  if p["excess_a"] > 0 and n * p["excess_a"] > margin] + [0.0])
@@ -389,7 +412,10 @@ def design_system(system: System) -> SystemResult:
     # the limit, R_s x limit (docs/design-method.md, "Several channels")
     params = [channel_bound_params(d, r_s * limit) for d in designs]
     fixed = [None if c.offset is None else math.ceil(c.offset / tick - 1e-9) * tick for c in channels]
-    together = {name: _together(designs, ks, r_s) for name, ks in rails.items()}
+    together = {}
+    for name, ks in rails.items():
+        got, delta = _consistent(designs, ks, [0.0] * len(ks), r_s)
+        together[name] = (got[0], delta)
     if limit > 0:
         stagger, how = find_stagger(params, fixed, limit, tick, list(rails.values()))
         checks.append(Check("supply_current_limit", stagger is not None,
@@ -401,8 +427,16 @@ def design_system(system: System) -> SystemResult:
     s = stagger or 0
     offset_ticks = [s * k if f is None else round(f / tick) for k, f in enumerate(fixed)]
     offsets = [t * tick for t in offset_ticks]
-    staggered = {name: total_bound([params[k] for k in ks], [offsets[k] for k in ks])
-                 for name, ks in rails.items()}
+    staggered, reading = {}, {}
+    for name, ks in rails.items():
+        got = total_bound([params[k] for k in ks], [offsets[k] for k in ks])
+        reading[name] = r_s * limit
+        if r_s > 0 and not (limit > 0 and got[0] <= limit):
+            # beyond the limit (or none given) the readings may droop more: a consistent droop
+            got, reading[name] = _consistent(designs, ks, [offsets[k] for k in ks], r_s)
+            for k in ks:
+                params[k] = channel_bound_params(designs[k], reading[name])
+        staggered[name] = got
     hold_avg = {name: sum(designs[k].hold.max_mean_current_a * designs[k].hold.duty for k in ks)
                 for name, ks in rails.items()}
     droop = _droop(system, channels, designs, rails, offsets)
@@ -413,7 +447,7 @@ def design_system(system: System) -> SystemResult:
     rail_rows = [{"channels": [channels[k].name for k in ks], "board_channels": list(name),
                   "peak_current_together_a": together[name][0],
                   "together_reading_droop_v": together[name][1],
-                  "staggered_reading_droop_v": r_s * limit,
+                  "staggered_reading_droop_v": reading[name],
                   "peak_current_staggered_a": staggered[name][0],
                   "peak_current_time_s": staggered[name][1],
                   "hold_average_current_a": hold_avg[name], **droop.get(name, {})}
@@ -422,23 +456,22 @@ def design_system(system: System) -> SystemResult:
                         how, timers, rail_rows, heat, out, checks)
 
 
-def _together(designs, ks: list[int], r_s: float) -> tuple[float, float]:
-    """``(bound A, reading droop V)`` of the rail's current with the peaks of the channels
-    ``ks`` together. With a source resistance the readings droop by ``R_s`` x the rail's
-    current, which this bound is itself of: a droop ``delta`` with ``R_s x bound(delta) <=
-    delta`` is consistent (the rail cannot pass the bound before a reading sees more
-    droop), found from 0 upwards; if it does not settle in a few steps, the droop of every
-    channel's ``V_max/R``."""
-    def bound(delta: float) -> float:
-        return total_bound([channel_bound_params(designs[k], delta) for k in ks], [0.0] * len(ks))[0]
+def _consistent(designs, ks: list[int], offsets, r_s: float) -> tuple[tuple[float, float], float]:
+    """``((bound A, time s), reading droop V)`` of the rail's current with the channels
+    ``ks`` started at ``offsets`` (s) when no limit keeps it low. With a source resistance
+    the readings droop by ``R_s`` x the rail's current, which this bound is itself of: a
+    droop ``delta`` with ``R_s x bound(delta) <= delta`` is consistent (the rail cannot pass
+    the bound before a reading sees more droop), found from 0 upwards; if it does not
+    settle in six steps, the droop of every channel's ``V_max/R``."""
+    def bound(delta: float) -> tuple[float, float]:
+        return total_bound([channel_bound_params(designs[k], delta) for k in ks], offsets)
     got = bound(0.0)
     if not r_s > 0:
         return got, 0.0
-    delta = 0.0
     for _ in range(6):
-        delta = r_s * got * (1 + 1e-3) + 1e-6
+        delta = r_s * got[0] * (1 + 1e-3) + 1e-6
         got = bound(delta)
-        if r_s * got <= delta:
+        if r_s * got[0] <= delta:
             return got, delta
     delta = r_s * sum(designs[k].drive.supply.max / min(c.resistance_ohm for c in designs[k].corners)
                       for k in ks)
@@ -457,7 +490,8 @@ def rail_curves(result: SystemResult, points: int = 6000) -> list[dict]:
         chans = [by_name[n] for n in rail["channels"]]
         views = {}
         for view, params, offsets in (
-                ("staggered", [c.bound for c in chans], [c.offset_s for c in chans]),
+                ("staggered", [channel_bound_params(c.design, rail["staggered_reading_droop_v"])
+                               for c in chans], [c.offset_s for c in chans]),
                 ("together", [channel_bound_params(c.design, rail["together_reading_droop_v"])
                               for c in chans], [0.0] * len(chans))):
             end = max(o + p["peak_s"] for o, p in zip(offsets, params)) * 1.25 + 1e-3
