@@ -60,7 +60,7 @@ def design_command(
     board: Optional[str] = typer.Option(None, "--board", "-b", help="Bundled board name or board file; overrides the drive file's board."),
     as_json: bool = typer.Option(False, "--json", help="Print the design as one JSON document on stdout."),
     header: Optional[Path] = typer.Option(None, "--header", help="Write the C header here (only when every check passes)."),
-    plot: Optional[Path] = typer.Option(None, "--plot", help="Write a PNG of the nominal and worst-corner actuation."),
+    plot: Optional[Path] = typer.Option(None, "--plot", help="Write a PNG of the nominal and worst-corner actuation (a system file: each channel's current bound and the rail's total against the limit, staggered and together)."),
     prefix: str = typer.Option("COIL", "--prefix", help="Name prefix of the header's macros (a system file's shared block: BOARD unless given)."),
     samples: int = typer.Option(0, "--samples", help="Add a tolerance Monte Carlo of N samples."),
     seed: int = typer.Option(1, "--seed", help="Random seed of the Monte Carlo."),
