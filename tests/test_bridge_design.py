@@ -158,7 +158,8 @@ def test_header_and_driver(tmp_path):
     text = generate_header(design(load_drive(BRIDGE)))
     assert "#define COIL_SWITCH_TOPOLOGY               COIL_TOPOLOGY_FULL_BRIDGE" in text
     assert "pump-up   the bus rises to" in text
+    assert "#define COIL_BRIDGE_HOLD_DECAY_SWITCHES    10U" in text
     res = CliRunner().invoke(app, ["firmware-driver", str(BRIDGE), "--out", str(tmp_path / "drv")])
-    assert res.exit_code == 2 and "switch.topology" in res.stderr
-    assert len(res.stderr.strip().splitlines()) == 1
-    assert not (tmp_path / "drv").exists() or not any((tmp_path / "drv").iterdir())
+    assert res.exit_code == 0, res.stderr
+    assert "coil_port_bridge(COIL_BRIDGE_PEAK_SWITCHES, COIL_BRIDGE_HOLD_DECAY_SWITCHES)" in (
+        tmp_path / "drv" / "coil_driver.c").read_text()
