@@ -125,3 +125,4 @@ def test_firmware_in_the_loop_passes_check_with_the_fast_release(tmp_path, build
     i_top = 0.3   # A: above the hold's top (258 mA mean, a few mA ripple)
     t_slow = float(decay_time(drive.release.current, i_top, slow.r_off, slow.v_off, slow.inductance))
     assert rel["status"] == "pass" and rel["measured"] < 0.3 * t_slow, (rel, t_slow)
+    assert rel["predicted"] < 0.3 * t_slow, (rel, t_slow)
