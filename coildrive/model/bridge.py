@@ -237,6 +237,7 @@ class FullBridge:
         "coil": "inline with the coil (reads the current always)",
         "switch": "in the common return below the low-side switches (reads only while driving)"})
     shows_node: bool = False
+    drive_switches: int = 2
 
     def node_voltage(self, supply, switch_voltage, sense_drop):
         """Leg A to ground, V: the bus less its high-side switch's voltage."""

@@ -1,11 +1,13 @@
-"""tune on a full bridge: the sweep runs the bridge's hold, whose off-times recirculate
-through the two low-side switches (slow decay), not a freewheel diode.
+"""The bench tools on a full bridge: tune's sweep runs the bridge's hold, whose off-times
+recirculate through the two low-side switches (slow decay), not a freewheel diode; fit
+takes the drive path's two switches (Q1 + Q4) out of the loop resistance.
 
 Outside sources: the slow-decay path is the one tests/test_reference_ngspice_bridge.py
 checks against ngspice (its drop time, and the simulated hold played into the
 element-level netlist); the PWM steady state is the closed form tests/test_reference_scipy.py
 checks against scipy's ODE solvers; the settled temperature is IEC 60028 copper at the
-fixed point T = T_a + R_th I_rms^2 R_coil(T).
+fixed point T = T_a + R_th I_rms^2 R_coil(T); fit's coil resistance against IEC 60028
+copper at the capture's coil temperature (the rise is the textbook RL step).
 """
 
 from __future__ import annotations
@@ -57,3 +59,21 @@ def test_the_best_settings_are_the_bridge_designs():
         assert c.coil_temp_c == pytest.approx(d.hold.coil_temp_c, rel=1e-12)
         assert c.switch_power_w == pytest.approx(d.hold.switch_power_w, rel=1e-12)
         assert c.freewheel_power_w == 0.0   # the current recirculates through the switches
+
+
+def test_fit_takes_both_drive_switches_out_of_the_loop():
+    from coildrive.bench.fit import fit_capture
+    from coildrive.bench.synth import synth_capture
+    from coildrive.design import firmware_setting
+
+    drive = load_drive(BRIDGE)
+    d = design(drive)
+    duty, peak = firmware_setting(d, 24.0, 60.0)
+    cap = synth_capture(drive, peak, duty, d.hold.frequency_hz, supply=24.0, coil_temp=60.0, hold_time=0.005)
+    fit = fit_capture(cap, drive.board, 24.0, 60.0)
+    r_sw, r_sense = drive.switch.on_resistance, drive.board.sense.resistance
+    assert fit.switch_resistance_ohm == pytest.approx(2 * r_sw)
+    assert fit.loop_resistance_ohm - fit.resistance_ohm == pytest.approx(2 * r_sw + r_sense, rel=1e-12)
+    # IEC 60028 annealed copper at 60 degC, within 1 % (the ADC's steps)
+    want = float(copper_resistance(drive.coil.resistance, drive.coil.reference_temp, 60.0))
+    assert fit.resistance_ohm == pytest.approx(want, rel=0.01)
