@@ -148,6 +148,12 @@ def coil_temperature(coil_temp: float | None) -> tuple[float, str | None]:
                   f"(copper changes {COPPER_ALPHA:.2%} per K, IEC 60028)")
 
 
+def drive_switch_resistance(board: Board) -> float:
+    """The switches' on-resistance (ohm) in the switched-on loop: one switch's, or a full
+    bridge's two (Q1 + Q4)."""
+    return board.switch.on_resistance * topology_named(board.switch.topology).drive_switches
+
+
 def fit_capture(capture: Capture, board: Board, supply: float, coil_temp: float | None = None,
                 analysis: Analysis | None = None, motion_fraction: float = MOTION_FRACTION) -> CoilFit:
     """Fit R and L of the coil from every actuation of ``capture`` (see the module docstring).
@@ -211,8 +217,7 @@ def fit_capture(capture: Capture, board: Board, supply: float, coil_temp: float 
     inds = np.array([f.inductance_h for f in fits])
     r_loop = float(np.median(r_loops))
     ind = float(np.median(inds))
-    # the switches the drive current flows through: one, or a full bridge's two
-    r_sw = board.switch.on_resistance * topology_named(board.switch.topology).drive_switches
+    r_sw = drive_switch_resistance(board)
     r_sense = board.sense.resistance
     r_coil = r_loop - r_sw - r_sense
     if r_coil <= 0:
