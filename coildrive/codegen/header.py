@@ -200,12 +200,12 @@ def _bridge_constants(d: Design, m: str) -> tuple[list[Constant], list[Constant]
     b = None if d.topology is None else d.topology.bridge
     if b is None:
         return [], []
-    from ..model.bridge import SWITCHES  # the bit order
+    from ..model.bridge import SWITCHES, switch_mask  # the bit order
     bits = [Constant(f"{m}_BRIDGE_{BRIDGE_SWITCHES[n][0]}", 1 << k, BRIDGE_SWITCHES[n][1])
             for k, n in enumerate(SWITCHES)]
     phases = []
     for phase, names in b.switches_on.items():
-        mask = sum(1 << SWITCHES.index(n) for n in names)
+        mask = switch_mask(names)
         on = " + ".join(BRIDGE_SWITCHES[n][1].split(":")[0] for n in names) or "none"
         phases.append(Constant(f"{m}_BRIDGE_{BRIDGE_PHASES[phase][0]}_SWITCHES", mask,
                                f"{on} on -- {BRIDGE_PHASES[phase][1]}"))

@@ -190,8 +190,6 @@ SWITCHES = ("high_a", "low_a", "high_b", "low_b")
 #: together (that would short the bus).
 PHASES = {"peak": ("high_a", "low_b"), "hold_on": ("high_a", "low_b"),
           "hold_decay": ("low_a", "low_b"), "release": ()}
-#: The two legs, each as (high-side, low-side) switch.
-LEGS = (("high_a", "low_a"), ("high_b", "low_b"))
 
 
 def switch_mask(names) -> int:
