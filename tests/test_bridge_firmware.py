@@ -93,14 +93,52 @@ def test_driver_sets_the_phase_masks_around_every_switch_edge(tmp_path):
         assert lines[k + 1][0] == "g" and int(lines[k + 1][3]) == 0, lines[k + 1]
 
 
-@pytest.fixture
-def build_cache(tmp_path, monkeypatch):
-    """The emulator builds the driver into a cache of the test's own (it inherits the env)."""
-    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "cache"))
+@pytest.fixture(scope="module")
+def firmware(tmp_path_factory):
+    """The bridge's driver as `firmware-driver` writes it, and a build cache that the
+    in-process device and the emulator subprocess share (one compiled library)."""
+    from conftest import run_cli
+
+    require_tool("gcc")
+    base = tmp_path_factory.mktemp("bridge-fw")
+    r = run_cli("firmware-driver", str(BRIDGE), "--out", str(base / "fw"))
+    assert r.returncode == 0, r.stderr
+    return base / "fw", base / "cache"
+
+
+@pytest.mark.compiler
+def test_every_extreme_corner_runs_without_a_fault(firmware, bridge_design):
+    # The healthy envelope never trips the driver's diagnostics on a bridge: at the lowest
+    # and highest supply, the coldest and hottest coil and both tolerance ends of R and L
+    # the compiled driver runs one actuation in the loop (in process) to its OFF, no FAULT
+    from coildrive.bench import FrameDecoder
+    from coildrive.bench.device import DeviceOptions
+    from coildrive.bench.firmware_device import FirmwareDevice
+    from coildrive.bench.messages import Event, EventKind
+    from coildrive.codegen.host_build import build_firmware
+
+    d = bridge_design
+    fw, cache = firmware
+    lib = build_firmware(fw, d, cache=cache / "coildrive" / "firmware")
+    supplies = (d.drive.supply.min, d.drive.supply.max)
+    temps = (min(c.coil_temp_c for c in d.corners), max(c.coil_temp_c for c in d.corners))
+    for supply in supplies:
+        for temp in temps:
+            for rs in (0.93, 1.07):
+                for ls in (0.85, 1.15):
+                    dev = FirmwareDevice(d, lib, DeviceOptions(
+                        supply=supply, coil_temp=temp, resistance_scale=rs, inductance_scale=ls,
+                        first_actuation=0.002, noise_codes=1, seed=3, hold_time=0.01))
+                    dec, kinds, t = FrameDecoder(), [], 0.0
+                    while t < 0.3 and EventKind.OFF not in kinds:
+                        t += 0.005
+                        kinds += [m.kind for m in dec.feed(dev.read(t)) if isinstance(m, Event)]
+                    assert EventKind.PEAK_END in kinds and EventKind.OFF in kinds, (supply, temp, rs, ls, kinds)
+                    assert EventKind.FAULT not in kinds, (supply, temp, rs, ls, kinds)
 
 
 @pytest.mark.slow
-def test_firmware_in_the_loop_passes_check_with_the_fast_release(tmp_path, build_cache):
+def test_firmware_in_the_loop_passes_check_with_the_fast_release(tmp_path, firmware, monkeypatch):
     # firmware-driver -> emulate --firmware -> capture -> check, each a real subprocess:
     # the compiled driver switches the bridge's phases into the coil model (plumbing), and
     # check's release is the fast decay's (the slow path would take ms: it must fail)
@@ -111,10 +149,8 @@ def test_firmware_in_the_loop_passes_check_with_the_fast_release(tmp_path, build
     from coildrive.model.rl import decay_time
     from test_firmware_loop import capture
 
-    require_tool("gcc")
-    fw = tmp_path / "fw"
-    r = run_cli("firmware-driver", str(BRIDGE), "--out", str(fw))
-    assert r.returncode == 0, r.stderr
+    fw, cache = firmware
+    monkeypatch.setenv("XDG_CACHE_HOME", str(cache))
     out, _ = capture(tmp_path, fw, "bridge", drive=BRIDGE)
     r = run_cli("check", str(out), str(BRIDGE), "--json")
     items = {i["name"]: i for i in json.loads(r.stdout)["items"]}
