@@ -121,7 +121,7 @@ def fit_seated(capture: Capture, board: Board, supply: float, coil_temp: float |
     module docstring). ``supply`` V; ``coil_temp`` degC (``None``: 20 degC, noted);
     ``resistance`` the coil's ohm at that temperature (``None``: from the settled current
     at the end of each peak, as :func:`coildrive.bench.flux_fit.fit_flux`)."""
-    from .fit import coil_temperature
+    from .fit import coil_temperature, drive_switch_resistance
 
     if not (math.isfinite(supply) and supply > 0):
         raise InputError("--supply", "", f"{supply!r} must be a voltage above zero")
@@ -144,7 +144,7 @@ def fit_seated(capture: Capture, board: Board, supply: float, coil_temp: float |
     fs, apc = meta.sample_rate_hz, meta.amps_per_code
     if analysis is None:
         analysis = analyse(capture)
-    r_extra = board.switch.on_resistance + board.sense.resistance
+    r_extra = drive_switch_resistance(board) + board.sense.resistance
     idx = capture.index
     notes: list[str] = []
     releases = []

@@ -376,6 +376,9 @@ class BridgeResult:
     lands on ``capacitance_f``: the bus rises from the supply to ``pumped_bus_v`` (the
     highest over every turn-off and corner, ``pump_event``, ``pump_corner``; ``pump_up_v``
     its rise there), and the switches see up to ``pumped_switch_voltage_v``.
+    ``switches_on`` names the switches on in each phase (``peak``, ``hold_on``,
+    ``hold_decay``, ``release``; :data:`coildrive.model.bridge.PHASES`): what the header
+    and the reference driver switch.
     """
 
     hold_decay: str
@@ -394,6 +397,7 @@ class BridgeResult:
     pump_event: str | None = None
     pump_corner: str | None = None
     pumped_switch_voltage_v: float | None = None
+    switches_on: dict[str, list[str]] = field(default_factory=dict)
 
 
 @dataclass(frozen=True)

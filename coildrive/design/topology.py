@@ -17,7 +17,7 @@ import dataclasses
 import numpy as np
 
 from ..config import Drive
-from ..model.bridge import pump_up
+from ..model.bridge import PHASES, pump_up
 from ..model.circuit import full_bridge
 from ..model.rl import decay_integrals, decay_time
 from ..model.topology import topology_of
@@ -80,7 +80,8 @@ def bridge_result(drive: Drive, grid: CornerGrid, res: PointResults, peak_end,
                returned_per_release_j=float(returned["end of hold"][k_rel]), release_corner=grid.label(k_rel),
                returned_worst_j=float(returned[worst_event][k_w]), worst_event=worst_event,
                worst_corner=grid.label(k_w), returned_per_hold_period_j=0.0, sink=sup.sink,
-               capacitance_f=sup.capacitance, capacitor_rating_v=sup.capacitor_voltage)
+               capacitance_f=sup.capacitance, capacitor_rating_v=sup.capacitor_voltage,
+               switches_on={phase: list(names) for phase, names in PHASES.items()})
     if not sup.sink:
         pumps = {event: pump_up(i, supply, sup.capacitance, lp.r_off, lp.inductance, lp.diode(drive))
                  for event, i in currents.items()}

@@ -38,7 +38,7 @@ through two switches (``R_on = R_coil + 2 R_switch + R_sense``); its hold path i
 decay through the two low-side switches (``R_off = R_coil + 2 R_switch`` + ``R_sense``
 inline, ``V_off = 0``), its release path the fast decay through two body diodes into the
 bus (``R_off = R_coil + R_sense``, ``V_off = V_bus + 2 V_diode``); the switches see
-``V_bus`` in the slow decay and ``V_bus + V_diode`` (+ ``R_sense i`` from a common-return
+``V_bus + R_switch i`` in the slow decay and ``V_bus + V_diode`` (+ ``R_sense i`` from a common-return
 resistor) in the fast one.
 """
 
@@ -92,8 +92,8 @@ class Loop:
     def switch_voltage(self, drive: Drive, current):
         """Switch (drain) voltage in V right after turning off ``current`` A."""
         fw = drive.freewheel
-        if self.bridge == "slow":  # the open high-side switches hold off the bus
-            return self.supply + 0.0 * np.asarray(current, float)
+        if self.bridge == "slow":  # Q1 holds off the bus above leg A (at -R_switch i)
+            return self.supply + drive.switch.on_resistance * np.asarray(current, float)
         if self.bridge == "fast":
             return fast_switch_voltage(self.supply, self.diode(drive), drive.board.sense.resistance,
                                        drive.board.sense.position == "coil", current)

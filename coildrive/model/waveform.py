@@ -21,6 +21,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..config import Drive
+from . import bridge
 from .circuit import full_bridge, loop, split_decay
 from . import supply as bus_model
 from .flux import FluxCoil
@@ -42,7 +43,10 @@ class Waveform:
     is the bypass switch: 1 while it shorts the fast-decay element; ``events`` then has
     ``bypass_open``. ``node_voltage`` (the switch node to ground, V) and ``coil_voltage``
     (across the coil's terminals, V) are there for topologies whose switch node is not
-    the switch voltage (``Topology.shows_node``; ``None`` for a low-side switch).
+    the switch voltage (``Topology.shows_node``; ``None`` for a low-side switch). A full
+    bridge has ``switches`` (each of its four switches' state, 0/1, by name:
+    :data:`coildrive.model.bridge.SWITCHES`) and ``coil_voltage``; its ``switch_on`` is 1
+    in the on-times (Q1 + Q4), its ``switch_voltage`` the highest of the four switches'.
     """
 
     time: np.ndarray
@@ -57,11 +61,13 @@ class Waveform:
     bypass_on: np.ndarray | None = None
     node_voltage: np.ndarray | None = None
     coil_voltage: np.ndarray | None = None
+    switches: dict[str, np.ndarray] | None = None
 
     def to_csv(self) -> str:
         """CSV text with header ``time_s,current_a,switch_on,switch_voltage_v,sense_current_a``
         (then ``bypass_on`` with split decay, ``position_m,velocity_m_s`` with an armature,
-        ``node_voltage_v,coil_voltage_v`` with a high-side switch)."""
+        ``node_voltage_v,coil_voltage_v`` with a high-side switch, ``high_a_on,low_a_on,
+        high_b_on,low_b_on,coil_voltage_v`` with a full bridge)."""
         buf = io.StringIO()
         cols = [self.time, self.current, self.switch_on, self.switch_voltage, self.sense_current]
         head = "time_s,current_a,switch_on,switch_voltage_v,sense_current_a"
@@ -78,6 +84,10 @@ class Waveform:
             cols += [self.node_voltage, self.coil_voltage]
             head += ",node_voltage_v,coil_voltage_v"
             fmt += ["%.6e", "%.6e"]
+        if self.switches is not None:
+            cols += [*self.switches.values(), self.coil_voltage]
+            head += "".join(f",{name}_on" for name in self.switches) + ",coil_voltage_v"
+            fmt += ["%d"] * len(self.switches) + ["%.6e"]
         buf.write(head + "\n")
         np.savetxt(buf, np.column_stack(cols), delimiter=",", fmt=fmt)
         return buf.getvalue()
@@ -180,8 +190,31 @@ def release_waveform(drive: Drive, lp, supply: float, ts: list, cs: list, ons: l
     if rel is not lp:  # the release's switch voltage from its own path
         v_sw = np.where(time > t_off, _switch_and_sense(drive, rel, supply, current, on)[0], v_sw)
     events = {"on": 0.0, "hold": peak_time, "off": t_off, "zero": t_off + tz}
+    if full_bridge(drive):
+        v_sw, sense, extra = _bridge_columns(drive, supply, time, current, on, v_sw, t_off)
+        return Waveform(time, current, on, v_sw, sense, events, label, **extra)
     return Waveform(time, current, on, v_sw, sense, events, label,
                     **node_columns(drive, supply, current, on, v_sw))
+
+
+def _bridge_columns(drive: Drive, supply: float, time, current, on, v_fast, t_off: float):
+    """A full bridge's switch voltage (the highest of its four, V), sensed current (A), and
+    as keyword arguments its switches' states and the coil voltage (V), per sample: the
+    on-times drive through Q1 + Q4 (Q2 and Q3 hold off ``V_bus`` less the drops across
+    Q1 and a common-return sense resistor), the hold's off-times recirculate through Q2
+    + Q4 (Q1 holds off ``V_bus + R_sw i``), after the final turn-off ``t_off`` s all four
+    are open (``v_fast``: the fast decay's switch voltage, :func:`_switch_and_sense` of
+    the release loop)."""
+    sense = drive.board.sense
+    r_sw = drive.switch.on_resistance
+    r_return = sense.resistance if sense.position == "switch" else 0.0
+    phase = np.where(on == 1, 1, np.where(time > t_off, -1, 0))
+    v_sw = np.where(phase == 1, supply - current * (r_sw + r_return),
+                    np.where(phase == 0, supply + current * r_sw, v_fast))
+    coil = bridge.coil_voltage(supply, current, phase, r_sw, sense.resistance, sense.position == "coil",
+                               drive.freewheel.diode_drop)
+    sensed = current if sense.position == "coil" else current * on
+    return v_sw, sensed, {"switches": bridge.switch_states(phase), "coil_voltage": coil}
 
 
 def _split_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_time: float,
