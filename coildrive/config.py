@@ -358,6 +358,7 @@ class Hold:
     max_frequency: float = 0.0
     sense_delay: float = 0.0
     regulation: str = "supply_table"
+    fast_fraction: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -598,7 +599,7 @@ class Drive:
 #: default, so that files which do not use them keep their hash (and headers their bytes).
 _LATER_FIELDS = (
     (("coil",), Coil, _DATASHEET_KEYS + ("stated_temp", "flux_current", "flux_linkage")),
-    (("hold",), Hold, _CURRENT_MODE_KEYS + ("regulation",)),
+    (("hold",), Hold, _CURRENT_MODE_KEYS + ("regulation", "fast_fraction")),
     (("thermal",), Thermal, ("capacity",)),
     (("pull_in",), PullIn, ("current_margin", "settle_time", "compensate")),
     (("supply",), Supply, ("sink", "capacitance", "capacitor_voltage", "source_resistance")),
@@ -1251,6 +1252,10 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
     cannot sink the returned energy, the bulk capacitance. (The supply's ``sink`` and
     ``capacitance`` keys mean nothing to the other topologies, which return no energy.)"""
     if switch.topology != "full_bridge":
+        if hold.fast_fraction > 0:
+            raise InputError(source, "hold.fast_fraction", f"{hold.fast_fraction:g} with switch.topology = "
+                             f"{switch.topology!r}: mixed decay needs a full bridge, expected 0 or "
+                             "the key left out")
         return
     if freewheel.type != "diode":
         raise InputError(fw_origins.get("type", source), "freewheel.type",
@@ -1383,6 +1388,10 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
                 s.fraction("frequency_tolerance", 0.01))
     hold = _read_current_mode(s, hold)
     hold = _check_regulation(s, _read_regulation(s, hold), brd)
+    hold = dataclasses.replace(hold, fast_fraction=s.fraction("fast_fraction", 0.0, below_one=False))
+    if not hold.fast_fraction <= 1.0:
+        raise s.fail("fast_fraction", f"{hold.fast_fraction:g} is more than the whole off-time, "
+                     "expected 0..1")
     if hold.current >= pull_in.current:
         what = " (derived from the mechanics)" if "hold.current" in derived else ""
         raise s.fail("current", f"{hold.current:g} A{what} is not below pull_in.current "

@@ -371,8 +371,10 @@ class BridgeResult:
 
     ``returned_per_release_j``: back to the bus at the release from the top of the hold
     ripple (its worst corner ``release_corner``); ``returned_worst_j`` over every turn-off
-    (``worst_event``, ``worst_corner``); ``returned_per_hold_period_j``: 0, the hold's
-    off-times decay slowly and return nothing. With ``sink`` false the returned charge
+    (``worst_event``, ``worst_corner``); ``returned_per_hold_period_j``: 0 when the hold's
+    off-times decay slowly (``hold_decay`` ``"slow"``) and return nothing; with mixed decay
+    (``hold_decay`` ``"mixed"``, ``hold_fast_fraction`` of each off-time fast) the most the
+    fast parts return in one PWM period, at ``hold_period_corner``. With ``sink`` false the returned charge
     lands on ``capacitance_f``: the bus rises from the supply to ``pumped_bus_v`` (the
     highest over every turn-off and corner, ``pump_event``, ``pump_corner``; ``pump_up_v``
     its rise there), and the switches see up to ``pumped_switch_voltage_v``.
@@ -394,6 +396,8 @@ class BridgeResult:
     pump_event: str | None = None
     pump_corner: str | None = None
     pumped_switch_voltage_v: float | None = None
+    hold_fast_fraction: float | None = None
+    hold_period_corner: str | None = None
 
 
 @dataclass(frozen=True)
@@ -652,6 +656,10 @@ class Design:
             topo = asdict(self.topology)
             if topo["bridge"] is None:
                 del topo["bridge"]
+            else:   # mixed decay's keys only where it is used (older outputs keep their bytes)
+                for key in ("hold_fast_fraction", "hold_period_corner"):
+                    if topo["bridge"][key] is None:
+                        del topo["bridge"][key]
             out["topology"] = topo
         if self.supply is not None:
             out["supply"] = asdict(self.supply)
