@@ -592,8 +592,23 @@ class ThermalCycleResult:
     warm_start: dict | None
 
 
+class Verdict:
+    """A design's verdict from its ``checks`` (a list of :class:`Check`)."""
+
+    checks: list[Check]
+
+    @property
+    def ok(self) -> bool:
+        """True when no error-severity check failed."""
+        return all(c.ok for c in self.checks if c.severity == "error")
+
+    @property
+    def failed(self) -> list[Check]:
+        return [c for c in self.checks if not c.ok and c.severity == "error"]
+
+
 @dataclass(frozen=True)
-class Design:
+class Design(Verdict):
     """One design result: every output (table, JSON, header, plot) is made from this."""
 
     drive: Drive
@@ -621,15 +636,6 @@ class Design:
     seat_check: SeatCheck | None = None
     datasheet: object | None = None   # design.datasheet.DatasheetResult, with datasheet inputs
     supply: SupplyResult | None = None
-
-    @property
-    def ok(self) -> bool:
-        """True when no error-severity check failed."""
-        return all(c.ok for c in self.checks if c.severity == "error")
-
-    @property
-    def failed(self) -> list[Check]:
-        return [c for c in self.checks if not c.ok and c.severity == "error"]
 
     def to_dict(self) -> dict:
         """Plain JSON-ready dict (the ``design --json`` document)."""

@@ -629,6 +629,9 @@ def check_tunable(drive: Drive, who: str) -> None:
     current-mode hold, a closed-loop hold, a flux-linkage curve, a mixed-decay hold. ``who``: the start of the
     message (``"coildrive tune sweeps"``, ``"live tuning steps"``); the offline sweep and
     live tuning share these refusals."""
+    if drive.hold.mode == "latch":
+        raise InputError(drive.source, "hold.mode", f"{who} the PWM of a hold; a latching coil has "
+                         "none: coildrive design sizes its pulses")
     if drive.hold.mode != "voltage":
         raise InputError(drive.source, "hold.mode", f"{who} the PWM of a voltage-mode hold; for "
                          "mode = \"current\" run coildrive design (it sizes the thresholds)")
