@@ -172,13 +172,22 @@ def test_a_two_winding_drive_without_its_reset_winding_is_refused(tmp_path):
     assert res.exit_code == 2 and "reset_coil" in res.stderr and "missing" in res.stderr
 
 
-@pytest.mark.parametrize("args", [["tune"], ["firmware-driver", "--out", "OUT"], ["design", "--plot", "x.png"]])
+@pytest.mark.parametrize("args", [["tune"], ["firmware-driver", "--out", "OUT"], ["design", "--samples", "10"],
+                                  ["simulate", "--supply", "12", "--coil-temp", "20", "--csv", "w.csv", "--plot", "x.png"]])
 def test_commands_that_do_not_run_a_latch_say_so_in_one_line(tmp_path, args):
-    args = [a.replace("OUT", str(tmp_path / "drv")).replace("x.png", str(tmp_path / "x.png")) for a in args]
+    args = [a.replace("OUT", str(tmp_path / "drv")).replace("x.png", str(tmp_path / "x.png"))
+            .replace("w.csv", str(tmp_path / "w.csv")) for a in args]
     res = CliRunner().invoke(app, [args[0], str(BRIDGE), *args[1:]])
     assert res.exit_code == 2, res.stdout
     assert len(res.stderr.strip().splitlines()) == 1, res.stderr
-    assert not (tmp_path / "x.png").exists()
+    assert not (tmp_path / "x.png").exists() and not (tmp_path / "w.csv").exists()
+
+
+def test_design_plot_draws_both_pulses(tmp_path):
+    out = tmp_path / "latch.png"
+    res = CliRunner().invoke(app, ["design", str(RELAY), "--plot", str(out)])
+    assert res.exit_code == 0, res.stderr
+    assert out.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
 
 
 def test_reset_sections_need_a_latch(tmp_path):

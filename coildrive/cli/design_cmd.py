@@ -51,8 +51,6 @@ def _run_latch(drive, as_json: bool, header: Optional[Path], plot: Optional[Path
     """``design`` of a latching coil: its table or JSON, and its header."""
     from ..design.latch import design_latch
 
-    if plot is not None:
-        raise InputError("--plot", "", "a latching coil has no plot yet: use coildrive simulate --csv")
     if samples:
         raise InputError("--samples", "", "a latching coil has no Monte Carlo yet, expected 0")
     result = design_latch(drive)
@@ -61,6 +59,11 @@ def _run_latch(drive, as_json: bool, header: Optional[Path], plot: Optional[Path
     else:
         from ..design.latch_report import print_latch
         print_latch(result)
+    if plot is not None:
+        from ..design.latch import latch_waveforms
+        from ..design.latch_plot import plot_latch
+        write_atomic(plot, plot_latch(result, latch_waveforms(result)))
+        status(f"wrote plot {plot}")
     from ..codegen.latch_header import generate_latch_header
     _header_or_exit(result, header, lambda: generate_latch_header(result, prefix))
 

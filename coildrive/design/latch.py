@@ -67,7 +67,8 @@ class PulseResult:
     ``peak_switch_voltage_v``: the switch's highest voltage at the pulse's end (a bus
     pumped by a bridge's fast decay with ``supply.sink = false`` included).
     ``droop_v``: how far a pulse from the capacitor pulls the bus down (0 on a stiff bus);
-    ``recharge_time_s`` how long it then needs to be back within the recharge tolerance.
+    ``recharge_time_s`` how long it then needs to be back within the recharge tolerance
+    (the longest, at ``recharge_corner``; its supply is the source's).
     """
 
     name: str
@@ -98,6 +99,7 @@ class PulseResult:
     switch_voltage_corner: str
     droop_v: float
     recharge_time_s: float
+    recharge_corner: str
 
 
 @dataclass(frozen=True)
@@ -247,6 +249,7 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
                             f"({pts.label(k_p)}) on {drive.supply.capacitance * 1e6:.4g} uF"))
     # the capacitor: droop of the longest pulse from a full capacitor, and its recharge
     droop = recharge = 0.0
+    recharge_corner = ""
     if droops:
         s = drive.supply
         full = loop(wd, np.where(pts.supply < drive.supply.max, drive.supply.min, pts.supply), pts.temp,
@@ -258,6 +261,7 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
                                          s.capacitance)
         k_r = worst(t_rc)
         droop, recharge = float(np.max(dv)), float(t_rc[k_r])
+        recharge_corner = _Points(full.v_on, pts.temp, pts.r_factor, pts.l_factor).label(k_r)
     result = PulseResult(
         name=name, winding=winding, switches=switches, current_a=current, margin=margin,
         current_margin=cm, settle_time_s=settle, ticks=ticks, time_s=t_long, shortest_s=t_short,
@@ -267,7 +271,8 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
         supply_j=float(supply_e[k_e]), copper_j=float(copper[k_e]), switch_sense_j=float(sw_sense[k_e]),
         freewheel_j=float(fw[k_e]), returned_j=float(returned[k_e]), energy_corner=pts.label(k_e),
         decay_time_s=float(np.max(t_zero)), peak_switch_voltage_v=v_sw_top,
-        switch_voltage_corner=pts.label(k_v), droop_v=droop, recharge_time_s=recharge)
+        switch_voltage_corner=pts.label(k_v), droop_v=droop, recharge_time_s=recharge,
+        recharge_corner=recharge_corner)
     limit = drive.switch.max_voltage * drive.switch.derating
     checks.insert(0, Check(f"{name}_pulse", ticks is not None,
                            (f"{name} pulse {ticks} ticks ({t_long * 1e3:.4g} ms, {governed}): the shortest "
@@ -343,3 +348,24 @@ def _cautions(drive: Drive, r: LatchResult) -> list[str]:
                    "drivers a dead time (common practice).")
     out.append(SAFETY_CAUTION)
     return out
+
+
+def latch_waveforms(d: LatchDesign) -> dict:
+    """The set and reset pulses the plot draws, by label: at the nominal supply with the
+    coil at the hottest ambient, and at the pulses' worst corner (the lowest supply the
+    design takes, the coil at its limit, R and L high); the reset pulse one interval after
+    the set pulse (:func:`coildrive.model.latch_waveform.latch_actuation`)."""
+    from ..model.latch_waveform import latch_actuation
+
+    drive = d.drive
+    by = {p.name: p for p in d.latch.pulses}
+    scale = 1.0 - drive.latch.recharge_tolerance if drive.supply.droops else 1.0
+    rt, lt = drive.coil.resistance_tolerance, drive.coil.inductance_tolerance
+    points = {f"nominal: {drive.supply.nominal:g} V, coil {drive.ambient.max:g} degC":
+              (drive.supply.nominal, drive.ambient.max, 1.0, 1.0),
+              f"worst: {drive.supply.min * scale:.4g} V, coil {drive.thermal.max_coil_temp:g} degC, "
+              f"R{rt * 100:+.3g}%, L{lt * 100:+.3g}%":
+              (drive.supply.min * scale, drive.thermal.max_coil_temp, 1 + rt, 1 + lt)}
+    return {label: latch_actuation(drive, winding_drive(drive, True), v, t, by["set"].time_s,
+                                   by["reset"].time_s, d.latch.interval_s, rf, lf, 400)
+            for label, (v, t, rf, lf) in points.items()}
