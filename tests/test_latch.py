@@ -195,3 +195,16 @@ def test_reset_sections_need_a_latch(tmp_path):
     demo.write_text((EXAMPLES / "demo-valve.toml").read_text() + "\n[reset]\ncurrent = \"0.1 A\"\n")
     res = CliRunner().invoke(app, ["design", str(demo)])
     assert res.exit_code == 2 and "reset" in res.stderr and "latching" in res.stderr
+
+
+def test_a_high_side_latch_reports_its_node_below_ground(tmp_path):
+    # the relay's windings on the high-side Zener board: the node at a pulse's end is
+    # -(V_diode + V_zener) (the topology's node, model.high_side)
+    path = _write(tmp_path, RELAY, 'board = "tiny-8bit-diode"', 'board = "sourcing-hs-zener"')
+    drive = load_drive(path)
+    d = design_latch(drive)
+    fw = drive.freewheel
+    for p in d.latch.pulses:
+        assert p.lowest_node_v == pytest.approx(-(fw.diode_drop + fw.zener_voltage), abs=0.05)
+    assert any("node swings" in c for c in d.cautions)
+    assert all(p.lowest_node_v is None for p in design_latch(load_drive(RELAY)).latch.pulses)

@@ -10,7 +10,8 @@ with a reset winding (``[reset_coil]``) each winding has its own switch. The wor
 corner of a pulse's length is the lowest supply (less ``hold.recharge_tolerance`` when
 the pulses come from a capacitor behind ``supply.source_resistance``, whose droop the
 rise includes) with the coil at ``thermal.max_coil_temp`` (the interval below keeps it
-there or cooler), highest resistance and inductance.
+there or cooler), highest resistance and inductance (and sense resistance, with its
+``resistance_tolerance``).
 
 Per pulse: its energy from the supply, into the coil's copper, the switches and sense
 resistor, the freewheel path, and back to the bus (a bridge's fast decay) at the corner
@@ -40,6 +41,7 @@ from ..model import supply as bus_model
 from ..model.bridge import pump_up
 from ..model.circuit import freewheel_element_energy, full_bridge, loop
 from ..model.rl import decay_integrals, decay_time, rise_current, rise_integrals
+from ..model.topology import topology_of
 from .checks import SAFETY_CAUTION
 from .corners import tolerance_label
 from .figures import worst
@@ -68,7 +70,8 @@ class PulseResult:
     pumped by a bridge's fast decay with ``supply.sink = false`` included).
     ``droop_v``: how far a pulse from the capacitor pulls the bus down (0 on a stiff bus);
     ``recharge_time_s`` how long it then needs to be back within the recharge tolerance
-    (the longest, at ``recharge_corner``; its supply is the source's).
+    (the longest, at ``recharge_corner``; its supply is the source's). ``lowest_node_v``:
+    a high-side switch's node at the pulse's end, below ground (``None`` for the others).
     """
 
     name: str
@@ -100,6 +103,7 @@ class PulseResult:
     droop_v: float
     recharge_time_s: float
     recharge_corner: str
+    lowest_node_v: float | None = None
 
 
 @dataclass(frozen=True)
@@ -156,19 +160,25 @@ class _Points:
     temp: np.ndarray
     r_factor: np.ndarray
     l_factor: np.ndarray
+    sense_factor: np.ndarray | float = 1.0
 
     def label(self, k: int) -> str:
+        sense = np.broadcast_to(self.sense_factor, self.supply.shape)[k]
         return (f"{self.supply[k]:.4g} V, coil {self.temp[k]:g} degC, "
-                f"{tolerance_label('R', self.r_factor[k])}, {tolerance_label('L', self.l_factor[k])}")
+                f"{tolerance_label('R', self.r_factor[k])}, {tolerance_label('L', self.l_factor[k])}"
+                + ("" if sense == 1.0 else f", {tolerance_label('R_sense', sense)}"))
 
 
 def _points(drive: Drive, coil, scale: float) -> _Points:
     """Every corner of the pulses: the supply's ends (the lower one times ``scale``), the
-    coil cold (``ambient.min``) and at its limit, and both ends of each tolerance."""
+    coil cold (``ambient.min``) and at its limit, and both ends of each tolerance (the
+    coil's resistance and inductance, the sense resistor's)."""
     rt, lt = coil.resistance_tolerance, coil.inductance_tolerance
+    st = drive.board.sense.resistance_tolerance
     grid = list(itertools.product((drive.supply.min * scale, drive.supply.max),
                                   (drive.ambient.min, drive.thermal.max_coil_temp),
-                                  sorted({1 - rt, 1 + rt}), sorted({1 - lt, 1 + lt})))
+                                  sorted({1 - rt, 1 + rt}), sorted({1 - lt, 1 + lt}),
+                                  sorted({1 - st, 1 + st})))
     return _Points(*(np.array(a, float) for a in zip(*grid)))
 
 
@@ -198,7 +208,7 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     droops = drive.supply.droops
     scale = 1.0 - lt.recharge_tolerance if droops else 1.0
     pts = _points(drive, coil, scale)
-    lp = loop(wd, pts.supply, pts.temp, pts.r_factor, pts.l_factor)
+    lp = loop(wd, pts.supply, pts.temp, pts.r_factor, pts.l_factor, sense_factor=pts.sense_factor)
     t_req = rise_time(wd, lp, current, lp.inductance)
     t_force = rise_time(wd, lp, cm * current, lp.inductance)
     ticks, by_time, by_force = requirement(drive, t_req, t_force, margin, settle)
@@ -221,7 +231,8 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     v, r_on, ind = lp.v_on, lp.r_on, lp.inductance
     q_on, s_on = rise_integrals(t_long, 0.0, v, r_on, ind)
     i_top = rise_current(t_long, 0.0, v, r_on, ind)
-    rel = loop(wd, pts.supply, pts.temp, pts.r_factor, pts.l_factor, path="release")
+    rel = loop(wd, pts.supply, pts.temp, pts.r_factor, pts.l_factor, path="release",
+               sense_factor=pts.sense_factor)
     t_zero = decay_time(0.0, i_top, rel.r_off, rel.v_off, ind)
     q_d, s_d = decay_integrals(t_zero, i_top, rel.r_off, rel.v_off, ind)
     sense = drive.board.sense
@@ -229,18 +240,21 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     sense_decay = bridge or sense.position == "coil"
     supply_e = v * q_on
     copper = lp.r_coil * (s_on + s_d)
-    sw_sense = n_sw * drive.switch.on_resistance * s_on + sense.resistance * (s_on + (s_d if sense_decay else 0.0))
+    r_sense = sense.resistance * pts.sense_factor
+    sw_sense = n_sw * drive.switch.on_resistance * s_on + r_sense * (s_on + (s_d if sense_decay else 0.0))
     fw = freewheel_element_energy(wd, rel, q_d, s_d)
     returned = v * q_d if bridge else 0.0 * q_d
     k_e = worst(supply_e)
     # the switch voltage at the end of the longest pulse, and a pumped bus
     v_sw = rel.switch_voltage(wd, i_top)
+    topo = topology_of(drive)
+    node = (float(np.min(topo.node_voltage(pts.supply, v_sw, 0.0 * v_sw))) if topo.shows_node else None)
     k_v = worst(v_sw)
     v_sw_top = float(v_sw[k_v])
     if bridge and not drive.supply.sink:
         pu = pump_up(i_top, v, drive.supply.capacitance, rel.r_off, ind, rel.diode(wd))
         k_p = worst(pu.v2)
-        drop = 0.0 if sense.position == "coil" else sense.resistance * float(np.max(i_top))
+        drop = 0.0 if sense.position == "coil" else float(np.max(r_sense * i_top))
         pumped = float(pu.v2[k_p]) + float(np.max(rel.diode(wd))) + drop
         if pumped > v_sw_top:
             v_sw_top, k_v = pumped, k_p
@@ -253,7 +267,7 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     if droops:
         s = drive.supply
         full = loop(wd, np.where(pts.supply < drive.supply.max, drive.supply.min, pts.supply), pts.temp,
-                    pts.r_factor, pts.l_factor)
+                    pts.r_factor, pts.l_factor, sense_factor=pts.sense_factor)
         b = bus_model.bus(full.v_on, s.source_resistance, s.capacitance, full.r_on, full.inductance)
         low, _ = bus_model.lowest_bus(np.full(full.v_on.shape, t_long), b)
         dv = full.v_on - low
@@ -261,7 +275,7 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
                                          s.capacitance)
         k_r = worst(t_rc)
         droop, recharge = float(np.max(dv)), float(t_rc[k_r])
-        recharge_corner = _Points(full.v_on, pts.temp, pts.r_factor, pts.l_factor).label(k_r)
+        recharge_corner = _Points(full.v_on, pts.temp, pts.r_factor, pts.l_factor, pts.sense_factor).label(k_r)
     result = PulseResult(
         name=name, winding=winding, switches=switches, current_a=current, margin=margin,
         current_margin=cm, settle_time_s=settle, ticks=ticks, time_s=t_long, shortest_s=t_short,
@@ -272,7 +286,7 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
         freewheel_j=float(fw[k_e]), returned_j=float(returned[k_e]), energy_corner=pts.label(k_e),
         decay_time_s=float(np.max(t_zero)), peak_switch_voltage_v=v_sw_top,
         switch_voltage_corner=pts.label(k_v), droop_v=droop, recharge_time_s=recharge,
-        recharge_corner=recharge_corner)
+        recharge_corner=recharge_corner, lowest_node_v=node)
     limit = drive.switch.max_voltage * drive.switch.derating
     checks.insert(0, Check(f"{name}_pulse", ticks is not None,
                            (f"{name} pulse {ticks} ticks ({t_long * 1e3:.4g} ms, {governed}): the shortest "
@@ -343,6 +357,11 @@ def _cautions(drive: Drive, r: LatchResult) -> list[str]:
            "limit the pulse length in hardware too (a timer or a one-shot) where that can hurt.",
            f"Turning a pulse off makes the switches see up to {max(p.peak_switch_voltage_v for p in r.pulses):.3g} V: "
            "keep the freewheel path (or the bridge's body diodes) fitted and rated."]
+    nodes = [p.lowest_node_v for p in r.pulses if p.lowest_node_v is not None]
+    if nodes:
+        out.append(f"At the end of a pulse the high-side switch's node swings to {min(nodes):.3g} V: the "
+                   "gate driver's source pin, a diagnostics divider and the cable to the coil must take "
+                   "that negative voltage.")
     if full_bridge(drive):
         out.append("Never turn on both switches of one leg (Q1 with Q2, or Q3 with Q4): give the gate "
                    "drivers a dead time (common practice).")
