@@ -208,3 +208,21 @@ def test_a_high_side_latch_reports_its_node_below_ground(tmp_path):
         assert p.lowest_node_v == pytest.approx(-(fw.diode_drop + fw.zener_voltage), abs=0.05)
     assert any("node swings" in c for c in d.cautions)
     assert all(p.lowest_node_v is None for p in design_latch(load_drive(RELAY)).latch.pulses)
+
+
+def test_a_pulse_too_hot_for_the_coil_fails_and_writes_no_header(tmp_path):
+    # 0.01 J/K: one ~1 J pulse alone would heat the coil ~100 K, past the 55 K allowed
+    path = _write(tmp_path, BRIDGE, 'capacity = "6 J/K"', 'capacity = "0.01 J/K"')
+    header = tmp_path / "latch.h"
+    res = CliRunner().invoke(app, ["design", str(path), "--json", "--header", str(header), "--plot",
+                                   str(tmp_path / "p.png")])
+    assert res.exit_code == 1, res.stderr
+    assert (tmp_path / "p.png").exists()
+    doc = json.loads(res.stdout)
+    assert doc["ok"] is False and doc["latch"]["thermal_interval_s"] is None
+    assert [c["name"] for c in doc["checks"] if not c["ok"]] == ["coil_temperature"]
+    assert not header.exists()
+    assert "No interval keeps the coil" in doc["cautions"][0]
+    res = CliRunner().invoke(app, ["simulate", str(path), "--supply", "12", "--coil-temp", "20", "--csv",
+                                   str(tmp_path / "w.csv")])
+    assert res.exit_code == 2 and len(res.stderr.strip().splitlines()) == 1, res.stderr

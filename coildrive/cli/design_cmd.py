@@ -123,6 +123,10 @@ def _simulate_latch(drive, v: float, t: float, csv: Path, r_factor: float, l_fac
         if p.ticks is None:
             raise InputError(str(drive.source), "pull_in.current" if p.name == "set" else "reset.current",
                              f"the {p.name} pulse's current is {p.not_reached}, so there is no pulse to simulate")
+    if d.latch.interval_ticks is None:
+        raise InputError(str(drive.source), "thermal.capacity", "one pulse heats the coil past "
+                         "thermal.max_coil_temp (the coil_temperature check), so there is no interval "
+                         "between pulses to simulate")
     w = latch_actuation(drive, winding_drive(drive, True), v, t, by["set"].time_s, by["reset"].time_s,
                         d.latch.interval_s, r_factor, l_factor, 40 * points)
     write_atomic(csv, w.to_csv())

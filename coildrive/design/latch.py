@@ -352,7 +352,10 @@ def design_latch(drive: Drive) -> LatchDesign:
 
 
 def _cautions(drive: Drive, r: LatchResult) -> list[str]:
-    out = [f"Never pulse faster than every {r.interval_s * 1e3:.4g} ms ({r.governed_by}): the coil is "
+    pace = (f"Never pulse faster than every {r.interval_s * 1e3:.4g} ms ({r.governed_by})"
+            if math.isfinite(r.interval_s) else "No interval keeps the coil below its limit (see the "
+            "coil_temperature check)")
+    out = [f"{pace}: the coil is "
            "rated for pulses, not for continuous current, and a stuck-on switch burns it quickly -- "
            "limit the pulse length in hardware too (a timer or a one-shot) where that can hurt.",
            f"Turning a pulse off makes the switches see up to {max(p.peak_switch_voltage_v for p in r.pulses):.3g} V: "
@@ -385,6 +388,8 @@ def latch_waveforms(d: LatchDesign) -> dict:
               f"worst: {drive.supply.min * scale:.4g} V, coil {drive.thermal.max_coil_temp:g} degC, "
               f"R{rt * 100:+.3g}%, L{lt * 100:+.3g}%":
               (drive.supply.min * scale, drive.thermal.max_coil_temp, 1 + rt, 1 + lt)}
+    # no safe interval (a failing coil_temperature check): the reset right after the set decays
+    gap = d.latch.interval_s if math.isfinite(d.latch.interval_s) else 0.0
     return {label: latch_actuation(drive, winding_drive(drive, True), v, t, by["set"].time_s,
-                                   by["reset"].time_s, d.latch.interval_s, rf, lf, 400)
+                                   by["reset"].time_s, gap, rf, lf, 400)
             for label, (v, t, rf, lf) in points.items()}

@@ -39,7 +39,7 @@ def latch_table(d: LatchDesign) -> Table:
                          f"({p.switch_voltage_corner})"
                          + (f"; the bus droops {p.droop_v:.4g} V and recharges in "
                             f"{p.recharge_time_s * 1e3:.4g} ms" if p.droop_v > 0 else "")))
-    t.add_row("shortest interval", f"{r.interval_s * 1e3:.4g} ms",
+    t.add_row("shortest interval", f"{r.interval_s * 1e3:.4g} ms" if r.interval_ticks else "none",
               escape(f"{r.interval_ticks} ticks, start to start ({r.governed_by}); decay "
                      f"{r.decay_interval_s * 1e3:.4g} ms, coil temperature {r.thermal_interval_s * 1e3:.4g} ms, "
                      f"recharge {r.recharge_interval_s * 1e3:.4g} ms"))
