@@ -1509,6 +1509,13 @@ def _check_latch(source: str, switch: Switch, freewheel: Freewheel, latch: Latch
     if switch.topology == "full_bridge" and latch.reset_coil is not None:
         raise InputError(source, "reset_coil", "a full bridge resets the one coil with the other "
                          "polarity: expected [reset_coil] left out (or a low- or high-side board)")
+    if freewheel.type == "clamp":
+        raise InputError(source, "freewheel.type", "\"clamp\" with a latching coil: a clamp across the "
+                         "switch draws from the bus after each pulse, which the pulse energies do not "
+                         "model yet; expected \"diode\", \"zener\" or \"resistor\"")
+    if freewheel.split_decay:
+        raise InputError(source, "freewheel.split_decay", "a latching coil has no hold to decay slowly "
+                         "in: expected split_decay left out")
     if switch.topology != "full_bridge" and latch.reset_coil is None:
         raise InputError(source, "reset_coil", f"missing: a {switch.topology.replace('_', '-')} switch "
                          "drives one polarity, so a latching coil needs its reset winding ([reset_coil]) "
