@@ -33,7 +33,7 @@ SENSE_POSITIONS = ("coil", "switch")
 #: around it (``full_bridge``: slow decay in the hold, fast decay into the supply at the
 #: release).
 TOPOLOGIES = ("low_side", "high_side", "full_bridge")
-HOLD_MODES = ("voltage", "current")
+HOLD_MODES = ("voltage", "current", "latch")
 CURRENT_CONTROLS = ("hysteretic", "off_time")
 _CURRENT_MODE_KEYS = ("control", "band", "off_time", "min_frequency", "max_frequency", "sense_delay")
 DISTRIBUTIONS = ("uniform", "normal")
@@ -118,6 +118,13 @@ BOUNDS: dict[str, tuple[float, float, str]] = {
     "hold.max_frequency": (1.0, 5e6, "frequency"),
     "hold.sense_delay": (0.0, 10e-3, "time"),
     "release.current": (1e-6, 1000.0, "current"),
+    "reset.current": (1e-6, 1000.0, "current"),
+    "reset.margin": (1.0, 10.0, "dimensionless"),
+    "reset.current_margin": (1.0, 3.0, "dimensionless"),
+    "reset.settle_time": (0.0, 10.0, "time"),
+    "reset_coil.resistance": (1e-3, 100e3, "resistance"),
+    "reset_coil.reference_temp": (-75.0, 250.0, "temperature"),
+    "reset_coil.inductance": (1e-6, 100.0, "inductance"),
     "armature.inductance_open": (1e-6, 100.0, "inductance"),
     "armature.inductance_closed": (1e-6, 100.0, "inductance"),
     "armature.stroke": (1e-6, 0.1, "length"),
@@ -358,6 +365,7 @@ class Hold:
     max_frequency: float = 0.0
     sense_delay: float = 0.0
     regulation: str = "supply_table"
+    fast_fraction: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -574,6 +582,25 @@ class Board:
 
 
 @dataclass(frozen=True)
+class Latch:
+    """A latching (bistable) coil (``[hold] mode = "latch"``): no hold, a set pulse sized
+    from ``[pull_in]`` and a reset pulse sized from ``[reset]`` the same way (``current``
+    A to unlatch, ``margin`` on the worst reset time, ``current_margin`` on that current
+    at the shortest real pulse, ``settle_time`` s after it). ``reset_coil`` is the reset
+    winding (``[reset_coil]``, on a second low- or high-side switch) or ``None`` (a full
+    bridge reverses the one coil). ``recharge_tolerance`` (a fraction): pulses from a
+    capacitor (``supply.source_resistance``) are designed from a bus this much below the
+    supply, and the next pulse waits until the capacitor is back there."""
+
+    reset_current: float
+    reset_margin: float
+    reset_current_margin: float
+    reset_settle_time: float
+    reset_coil: Coil | None
+    recharge_tolerance: float
+
+
+@dataclass(frozen=True)
 class Drive:
     """A drive file resolved against its board: everything the design needs.
 
@@ -598,6 +625,7 @@ class Drive:
     #: ``(prescaler, period counts)`` of a timer shared with other channels (a system
     #: file's, :mod:`coildrive.design.system`); None: solved for ``hold.frequency``.
     shared_timer: tuple[int, int] | None = None
+    latch: Latch | None = None
 
     def input_hash(self) -> str:
         """SHA-256 (first 16 hex digits) of the parsed inputs as canonical JSON.
@@ -609,6 +637,8 @@ class Drive:
         data["board"].pop("source", None)
         if data.get("duty") is None:   # added later: a file without [duty] keeps its hash
             data.pop("duty", None)
+        if data.get("latch") is None:  # likewise a drive that is not a latching coil
+            data.pop("latch", None)
         # the board's core picks only the timing figures firmware-driver prints; no design
         # figure reads it, so it leaves the hash (and every design output) as it was
         data["board"].pop("core", None)
@@ -621,7 +651,7 @@ class Drive:
 #: default, so that files which do not use them keep their hash (and headers their bytes).
 _LATER_FIELDS = (
     (("coil",), Coil, _DATASHEET_KEYS + ("stated_temp", "flux_current", "flux_linkage")),
-    (("hold",), Hold, _CURRENT_MODE_KEYS + ("regulation",)),
+    (("hold",), Hold, _CURRENT_MODE_KEYS + ("regulation", "fast_fraction")),
     (("thermal",), Thermal, ("capacity",)),
     (("pull_in",), PullIn, ("current_margin", "settle_time", "compensate")),
     (("supply",), Supply, ("sink", "capacitance", "capacitor_voltage", "source_resistance")),
@@ -1287,7 +1317,7 @@ def _check_droop(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     elif freewheel.type == "clamp":
         key, why = "freewheel.type", "a clamp across the switch (the release draws from the bus)"
         source = fw_origins.get("type", source)
-    elif hold.mode != "voltage":
+    elif hold.mode == "current":
         key, why = "hold.mode", "a current-mode hold"
     elif hold.regulation == "closed_loop":
         key, why = "hold.regulation", "a closed-loop hold"
@@ -1307,6 +1337,10 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
     cannot sink the returned energy, the bulk capacitance. (The supply's ``sink`` and
     ``capacitance`` keys mean nothing to the other topologies, which return no energy.)"""
     if switch.topology != "full_bridge":
+        if hold.fast_fraction > 0:
+            raise InputError(source, "hold.fast_fraction", f"{hold.fast_fraction:g} with switch.topology = "
+                             f"{switch.topology!r}: mixed decay needs a full bridge, expected 0 or "
+                             "the key left out")
         return
     if freewheel.type != "diode":
         raise InputError(fw_origins.get("type", source), "freewheel.type",
@@ -1317,7 +1351,7 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
         raise InputError(fw_origins.get("split_decay", source), "freewheel.split_decay",
                          "a full bridge decays slowly in the hold and fast at the release by itself: "
                          "expected split_decay left out")
-    if hold.mode != "voltage":
+    if hold.mode not in ("voltage", "latch"):
         raise InputError(source, "hold.mode", f"{hold.mode!r} with a full bridge: coildrive designs a "
                          "full bridge's hold in voltage mode only, expected mode = \"voltage\"")
     if armature is not None:
@@ -1340,7 +1374,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
     source = str(path)
     data = _read_toml(path)
     tables = ("coil", "supply", "ambient", "thermal", "pull_in", "hold", "release", "armature",
-              "switch", "freewheel", "duty")
+              "switch", "freewheel", "duty", "reset", "reset_coil")
     _root_sections(source, data, tables, ("board",))
     if board is not None:
         try:
@@ -1433,12 +1467,24 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
                      f"{brd.name!r} has no [supply_sense]")
     s.finish()
     s = _section(source, data, "hold")
+    if s.table.get("mode") == "latch":
+        hold, release, latch = _read_latch(source, data, s, pull_in)
+        return _latch_drive(source, path, data, brd, coil, sheet, supply, ambient, thermal, pull_in,
+                            hold, release, armature, duty, latch)
+    for name in ("reset", "reset_coil"):
+        if name in data:
+            raise InputError(source, name, f"[{name}] is for a latching coil only, expected it left "
+                             "out (or [hold] mode = \"latch\")")
     hold = Hold(current(s, "current", None if need is None else need["hold"]),
                 s.quantity("frequency", "frequency", positive=True),
                 s.choice("mode", HOLD_MODES, "voltage"),
                 s.fraction("frequency_tolerance", 0.01))
     hold = _read_current_mode(s, hold)
     hold = _check_regulation(s, _read_regulation(s, hold), brd)
+    hold = dataclasses.replace(hold, fast_fraction=s.fraction("fast_fraction", 0.0, below_one=False))
+    if not hold.fast_fraction <= 1.0:
+        raise s.fail("fast_fraction", f"{hold.fast_fraction:g} is more than the whole off-time, "
+                     "expected 0..1")
     if hold.current >= pull_in.current:
         what = " (derived from the mechanics)" if "hold.current" in derived else ""
         raise s.fail("current", f"{hold.current:g} A{what} is not below pull_in.current "
@@ -1454,6 +1500,88 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
     if armature is not None and derived:
         armature = dataclasses.replace(armature, derived=tuple(derived))
 
+    return _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_in, hold,
+                         release, armature, duty)
+
+
+def _read_latch(source: str, data: dict, s: "_Section", pull_in: PullIn) -> tuple[Hold, Release, Latch]:
+    """``[hold] mode = "latch"`` (its only other key ``recharge_tolerance``), ``[reset]`` and
+    the optional ``[reset_coil]``: the hold and release a latching coil does not have (zero
+    currents, never read) and its :class:`Latch`."""
+    s.choice("mode", HOLD_MODES)
+    tol = s.fraction("recharge_tolerance", 0.01)
+    if not tol > 0:
+        raise s.fail("recharge_tolerance", "0 would wait for ever for the capacitor, expected a "
+                     "fraction above 0 (0.01 = within 1 % of the supply)")
+    s.finish()
+    if "release" in data:
+        raise InputError(source, "release", "a latching coil stays where its last pulse put it (no "
+                         "drop-out current): expected [release] left out; the reset pulse is [reset]")
+    r = _section(source, data, "reset")
+    reset = (r.quantity("current", "current", positive=True), r.quantity("margin", "dimensionless", 1.5),
+             r.quantity("current_margin", "dimensionless", PULL_IN_CURRENT_MARGIN),
+             r.quantity("settle_time", "time", 0.0, nonnegative=True))
+    r.finish()
+    reset_coil = None
+    if "reset_coil" in data:
+        c = _section(source, data, "reset_coil")
+        for key in ("rated_voltage", "rated_power", "pick_up_voltage", "drop_out_voltage",
+                    "flux_current", "flux_linkage", "operate_time", "release_time", "stated_temp"):
+            if key in c.table:
+                raise c.fail(key, "the reset winding takes resistance, reference_temp, inductance and "
+                             "their tolerances only, expected this key left out")
+        reset_coil, _ = _read_coil(c, None)
+        c.finish()
+    return (Hold(0.0, 0.0, "latch"), Release(0.0),
+            Latch(*reset, reset_coil=reset_coil, recharge_tolerance=tol))
+
+
+def _latch_drive(source, path, data, brd, coil, sheet, supply, ambient, thermal, pull_in, hold,
+                 release, armature, duty, latch) -> Drive:
+    """A latching coil's :class:`Drive`: what it is not designed with is refused in one line."""
+    why = None
+    if armature is not None:
+        key, why = "armature", "a moving armature (the pulses are sized from the currents)"
+    elif sheet or coil.rated_voltage:
+        key, why = "coil", "the coil's datasheet voltages (give resistance and the currents)"
+    elif coil.flux_current:
+        key, why = "coil.flux_current", "a flux-linkage curve"
+    elif duty is not None:
+        key, why = "duty", "an on/off cycle (the design gives the shortest interval instead)"
+    elif pull_in.compensate:
+        key, why = "pull_in.compensate", "a supply-compensated peak"
+    elif thermal.resistance > 0 and not thermal.capacity > 0:
+        key, why = "thermal.capacity", ("no heat capacity (the pulses' heat and the interval between "
+                                        "them need it: give thermal.capacity or time_constant)")
+    if why is not None:
+        raise InputError(source, key, f"a latching coil ([hold] mode = \"latch\") is not designed with {why}")
+    return _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_in, hold,
+                         release, armature, duty, latch)
+
+
+def _check_latch(source: str, switch: Switch, freewheel: Freewheel, latch: Latch) -> None:
+    """A latching coil's circuit: a full bridge reverses one coil (no [reset_coil]); one
+    switch per winding (low or high side) needs the reset winding."""
+    if switch.topology == "full_bridge" and latch.reset_coil is not None:
+        raise InputError(source, "reset_coil", "a full bridge resets the one coil with the other "
+                         "polarity: expected [reset_coil] left out (or a low- or high-side board)")
+    if freewheel.type == "clamp":
+        raise InputError(source, "freewheel.type", "\"clamp\" with a latching coil: a clamp across the "
+                         "switch draws from the bus after each pulse, which the pulse energies do not "
+                         "model yet; expected \"diode\", \"zener\" or \"resistor\"")
+    if freewheel.split_decay:
+        raise InputError(source, "freewheel.split_decay", "a latching coil has no hold to decay slowly "
+                         "in: expected split_decay left out")
+    if switch.topology != "full_bridge" and latch.reset_coil is None:
+        raise InputError(source, "reset_coil", f"missing: a {switch.topology.replace('_', '-')} switch "
+                         "drives one polarity, so a latching coil needs its reset winding ([reset_coil]) "
+                         "on a second switch, or a full bridge")
+
+
+def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_in, hold, release,
+                  armature, duty, latch=None) -> Drive:
+    """The drive's switch and freewheel path (the board's, with the drive file's
+    overrides), the checks that need them, and the :class:`Drive`."""
     merged, origins = _merged(brd.source, dataclasses.asdict(brd.switch), source,
                               data.get("switch"))
     switch = _read_switch(_Section(source, merged, "switch", origins))
@@ -1472,5 +1600,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
         raise InputError(origins.get("clamp_voltage", source), "freewheel.clamp_voltage",
                          f"{freewheel.clamp_voltage:g} V is not above supply.max ({supply.max:g} V): "
                          "the clamp would conduct with the switch off")
+    if latch is not None:
+        _check_latch(source, switch, freewheel, latch)
     return Drive(path.stem, coil, supply, ambient, thermal, pull_in, hold, release, brd, switch,
-                 freewheel, armature, source, duty)
+                 freewheel, armature, source, duty, latch)

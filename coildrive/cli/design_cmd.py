@@ -32,6 +32,9 @@ def _run_design(drive_path: Path, board: Optional[str], as_json: bool, header: O
     if header is not None:
         from ..codegen.header import check_prefix
         check_prefix(prefix)
+    if drive.latch is not None:
+        _run_latch(drive, as_json, header, plot, prefix, samples)
+        return
     result = design(drive, samples=samples, seed=seed)
     if as_json:
         typer.echo(json.dumps(result.to_dict(), indent=2))
@@ -43,14 +46,42 @@ def _run_design(drive_path: Path, board: Optional[str], as_json: bool, header: O
         from ..design.plot import plot_design
         write_atomic(plot, plot_design(result, design_waveforms(result), design_thermal_curves(result)))
         status(f"wrote plot {plot}")
+    from ..codegen.header import generate_header
+    _header_or_exit(result, header, lambda: generate_header(result, prefix))
+
+
+def _run_latch(drive, as_json: bool, header: Optional[Path], plot: Optional[Path], prefix: str,
+               samples: int) -> None:
+    """``design`` of a latching coil: its table or JSON, and its header."""
+    from ..design.latch import design_latch
+
+    if samples:
+        raise InputError("--samples", "", "a latching coil has no Monte Carlo yet, expected 0")
+    result = design_latch(drive)
+    if as_json:
+        typer.echo(json.dumps(result.to_dict(), indent=2))
+    else:
+        from ..design.latch_report import print_latch
+        print_latch(result)
+    if plot is not None:
+        from ..design.latch import latch_waveforms
+        from ..design.latch_plot import plot_latch
+        write_atomic(plot, plot_latch(result, latch_waveforms(result)))
+        status(f"wrote plot {plot}")
+    from ..codegen.latch_header import generate_latch_header
+    _header_or_exit(result, header, lambda: generate_latch_header(result, prefix))
+
+
+def _header_or_exit(result, header: Optional[Path], render) -> None:
+    """Write the header ``render()`` gives when the design passes; exit 1 when it fails
+    (saying the header was not written)."""
     if not result.ok:
         if header is not None:
             status(f"header {header} not written: the design fails "
                    + ", ".join(c.name for c in result.failed))
         raise typer.Exit(1)
     if header is not None:
-        from ..codegen.header import generate_header
-        write_atomic(header, generate_header(result, prefix))
+        write_atomic(header, render())
         status(f"wrote header {header}")
 
 
@@ -79,6 +110,33 @@ def demo_command(
     if not as_json:
         status(f"demo: {path}")
     _run_design(path, None, as_json, header, None, "VALVE", 0, 1)
+
+
+def _simulate_latch(drive, v: float, t: float, csv: Path, r_factor: float, l_factor: float,
+                    points: int, plot: Optional[Path]) -> None:
+    """``simulate`` of a latching coil: the set pulse, then the reset pulse one shortest
+    interval later (``--hold-time`` does not apply)."""
+    from ..design.latch import design_latch, winding_drive
+    from ..model.latch_waveform import latch_actuation
+
+    if plot is not None:
+        raise InputError("--plot", "", "a latching coil has no plot yet: plot the CSV")
+    d = design_latch(drive)
+    by = {p.name: p for p in d.latch.pulses}
+    for p in by.values():
+        if p.ticks is None:
+            raise InputError(str(drive.source), "pull_in.current" if p.name == "set" else "reset.current",
+                             f"the {p.name} pulse's current is {p.not_reached}, so there is no pulse to simulate")
+    if d.latch.interval_ticks is None:
+        raise InputError(str(drive.source), "thermal.capacity", "one pulse heats the coil past "
+                         "thermal.max_coil_temp (the coil_temperature check), so there is no interval "
+                         "between pulses to simulate")
+    w = latch_actuation(drive, winding_drive(drive, True), v, t, by["set"].time_s, by["reset"].time_s,
+                        d.latch.interval_s, r_factor, l_factor, 40 * points)
+    write_atomic(csv, w.to_csv())
+    status(f"wrote {csv}: {len(w.time)} samples, set pulse {by['set'].time_s * 1e3:.4g} ms (zero at "
+           f"{w.events['set_zero'] * 1e3:.4g} ms), reset pulse at {w.events['reset'] * 1e3:.4g} ms for "
+           f"{by['reset'].time_s * 1e3:.4g} ms (zero at {w.events['reset_zero'] * 1e3:.4g} ms)")
 
 
 @user_errors
@@ -116,7 +174,11 @@ def simulate_command(
                              "system file (each channel runs at the file's nominal coil)")
         from .system_cmd import run_system_simulate
         return run_system_simulate(drive, board, v, t, h, points, csv)
-    d = design(load_drive(drive, board))
+    drv = load_drive(drive, board)
+    if drv.latch is not None:
+        _simulate_latch(drv, v, t, csv, r_factor, l_factor, points, plot)
+        return
+    d = design(drv)
     if d.pull_in.peak_ticks is None:
         raise InputError(str(drive), "pull_in.current", f"{d.pull_in.not_reached}, so the design "
                          "has no peak time to simulate")

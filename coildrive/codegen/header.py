@@ -131,7 +131,8 @@ class HeaderView:
         self.table = list(zip(d.duty_table.adc_codes, d.duty_table.compare_ticks, d.duty_table.supply_v))
         self.constants = _current_relabel_fallback(d, m, self.constants)
         self.current_constants = _current_header_constants(d, m)
-        self.current_checks = _current_header_checks(d, m) + _loop_header_checks(d, m)
+        self.current_checks = (_current_header_checks(d, m) + _loop_header_checks(d, m)
+                               + _mixed_header_checks(d, m))
         self.current_summary = _current_header_summary(d) + _loop_header_summary(d)
         self.loop_constants = _loop_header_constants(d, m)
 
@@ -178,8 +179,21 @@ def _topology_constants(d: Design, m: str) -> tuple[list[Constant], str]:
     t = d.topology
     if t is None:
         return [], ""
-    return ([Constant(f"{m}_TOPOLOGY_{name.upper()}", number, f"switch topology: {name.replace('_', ' ')}")
-             for name, number in TOPOLOGY_NUMBERS.items()], f"{m}_TOPOLOGY_{t.name.upper()}")
+    out = [Constant(f"{m}_TOPOLOGY_{name.upper()}", number, f"switch topology: {name.replace('_', ' ')}")
+           for name, number in TOPOLOGY_NUMBERS.items()]
+    if t.bridge is not None and t.bridge.hold_decay == "mixed":
+        out.append(Constant(f"{m}_HOLD_FAST_Q16", round(t.bridge.hold_fast_fraction * 65536),
+                            f"mixed decay: fast counts of each off-time = ((PERIOD - compare) x this "
+                            f"+ 32768) >> 16 ({t.bridge.hold_fast_fraction:.4g} of it)"))
+    return out, f"{m}_TOPOLOGY_{t.name.upper()}"
+
+
+def _mixed_header_checks(d: Design, m: str) -> list[tuple[str, str]]:
+    """With mixed decay: its fraction within the off-time."""
+    t = d.topology
+    if t is None or t.bridge is None or t.bridge.hold_decay != "mixed":
+        return []
+    return [(f"{m}_HOLD_FAST_Q16 > 65536", "mixed decay: the fast part is longer than the off-time")]
 
 
 #: The bridge's switches: header name and what each is.

@@ -32,7 +32,8 @@ def hold_power(drive: Drive, supply, r_factor, l_factor, duty, frequency, factor
 
     def power_at(temp):
         lp = loop(drive, supply, temp, r_factor, l_factor, **factors)
-        ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
+        ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance,
+                              mixed=lp.mixed)
         return ss.rms**2 * lp.r_coil
     return power_at
 
@@ -61,7 +62,8 @@ def required_duty(drive: Drive, supply, ambient, r_factor, l_factor, frequency,
     for _ in range(max_iter):
         lp = loop(drive, supply, np.where(np.isfinite(temp), temp, drive.thermal.max_coil_temp),
                   r_factor, l_factor)
-        need = duty_for_mean(target, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
+        need = duty_for_mean(target, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance,
+                             mixed=lp.mixed)
         if np.any(np.isnan(need)):
             return float("nan"), temp
         new = float(np.max(need))
@@ -209,7 +211,8 @@ def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
     lp = loop(drive, supply, finite, r_factor, l_factor, **factors)
     t_pull = bus_rise_time(drive, lp, drive.pull_in.current, lp.inductance)
     i_peak = bus_rise_current(drive, lp, peak_time, lp.inductance)
-    ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
+    ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance,
+                          mixed=lp.mixed)
     power = ss.rms**2 * lp.r_coil
     i_off = ss.i_max
     lp_rel = (loop(drive, supply, finite, r_factor, l_factor, path="release", **factors)
@@ -252,6 +255,8 @@ def switch_voltage_peak(drive: Drive, lp: Loop, lp_rel: Loop, i_peak, i_max, i_f
     which takes over at ``i_fast`` A (see :func:`release_figures`)."""
     interrupt = np.maximum(i_peak, i_max)
     v_sw = lp.switch_voltage(drive, interrupt)
+    if lp.mixed is not None:  # mixed decay: every off-time (the peak's end too) starts fast
+        v_sw = np.maximum(v_sw, lp_rel.switch_voltage(drive, interrupt))
     if lp_rel is not lp:
         v_sw = np.maximum(v_sw, lp_rel.switch_voltage(drive, i_fast))
     return interrupt, v_sw

@@ -115,7 +115,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
 
     up = np.minimum(plan.compare_low + 1, period)
     step = pwm_steady_state(up / period, f_hold, res_low.loop.v_on, res_low.loop.r_on,
-                            res_low.loop.r_off, res_low.loop.v_off, res_low.loop.inductance).mean - res_low.hold.mean
+                            res_low.loop.r_off, res_low.loop.v_off, res_low.loop.inductance,
+                            mixed=res_low.loop.mixed).mean - res_low.hold.mean
     k_hot = int(np.argmax(np.where(np.isfinite(plan.hot_temp), plan.hot_temp, np.inf)))
     k_heat = int(plan.hot_point[k_hot])
     spread = hold_spread(env, res_low)

@@ -371,8 +371,10 @@ class BridgeResult:
 
     ``returned_per_release_j``: back to the bus at the release from the top of the hold
     ripple (its worst corner ``release_corner``); ``returned_worst_j`` over every turn-off
-    (``worst_event``, ``worst_corner``); ``returned_per_hold_period_j``: 0, the hold's
-    off-times decay slowly and return nothing. With ``sink`` false the returned charge
+    (``worst_event``, ``worst_corner``); ``returned_per_hold_period_j``: 0 when the hold's
+    off-times decay slowly (``hold_decay`` ``"slow"``) and return nothing; with mixed decay
+    (``hold_decay`` ``"mixed"``, ``hold_fast_fraction`` of each off-time fast) the most the
+    fast parts return in one PWM period, at ``hold_period_corner``. With ``sink`` false the returned charge
     lands on ``capacitance_f``: the bus rises from the supply to ``pumped_bus_v`` (the
     highest over every turn-off and corner, ``pump_event``, ``pump_corner``; ``pump_up_v``
     its rise there), and the switches see up to ``pumped_switch_voltage_v``.
@@ -398,6 +400,8 @@ class BridgeResult:
     pump_corner: str | None = None
     pumped_switch_voltage_v: float | None = None
     switches_on: dict[str, list[str]] = field(default_factory=dict)
+    hold_fast_fraction: float | None = None
+    hold_period_corner: str | None = None
 
 
 @dataclass(frozen=True)
@@ -592,8 +596,23 @@ class ThermalCycleResult:
     warm_start: dict | None
 
 
+class Verdict:
+    """A design's verdict from its ``checks`` (a list of :class:`Check`)."""
+
+    checks: list[Check]
+
+    @property
+    def ok(self) -> bool:
+        """True when no error-severity check failed."""
+        return all(c.ok for c in self.checks if c.severity == "error")
+
+    @property
+    def failed(self) -> list[Check]:
+        return [c for c in self.checks if not c.ok and c.severity == "error"]
+
+
 @dataclass(frozen=True)
-class Design:
+class Design(Verdict):
     """One design result: every output (table, JSON, header, plot) is made from this."""
 
     drive: Drive
@@ -622,15 +641,6 @@ class Design:
     datasheet: object | None = None   # design.datasheet.DatasheetResult, with datasheet inputs
     supply: SupplyResult | None = None
 
-    @property
-    def ok(self) -> bool:
-        """True when no error-severity check failed."""
-        return all(c.ok for c in self.checks if c.severity == "error")
-
-    @property
-    def failed(self) -> list[Check]:
-        return [c for c in self.checks if not c.ok and c.severity == "error"]
-
     def to_dict(self) -> dict:
         """Plain JSON-ready dict (the ``design --json`` document)."""
         hold = asdict(self.hold)
@@ -656,6 +666,10 @@ class Design:
             topo = asdict(self.topology)
             if topo["bridge"] is None:
                 del topo["bridge"]
+            else:   # mixed decay's keys only where it is used (older outputs keep their bytes)
+                for key in ("hold_fast_fraction", "hold_period_corner"):
+                    if topo["bridge"][key] is None:
+                        del topo["bridge"][key]
             out["topology"] = topo
         if self.supply is not None:
             out["supply"] = asdict(self.supply)

@@ -39,7 +39,9 @@ decay through the two low-side switches (``R_off = R_coil + 2 R_switch`` + ``R_s
 inline, ``V_off = 0``), its release path the fast decay through two body diodes into the
 bus (``R_off = R_coil + R_sense``, ``V_off = V_bus + 2 V_diode``); the switches see
 ``V_bus + R_switch i`` in the slow decay and ``V_bus + V_diode`` (+ ``R_sense i`` from a common-return
-resistor) in the fast one.
+resistor) in the fast one. With ``hold.fast_fraction > 0`` (mixed decay) the hold's loop
+carries the fast path too (``Loop.mixed``, :class:`~coildrive.model.pwm.MixedDecay`): each
+off-time starts fast and ends slow.
 """
 
 from __future__ import annotations
@@ -52,6 +54,7 @@ from ..config import Drive
 from .bridge import fast_switch_voltage
 from ..copper import COPPER_ALPHA, copper_resistance  # noqa: F401  (re-exported)
 from . import flux
+from .pwm import MixedDecay
 
 
 @dataclass(frozen=True)
@@ -77,6 +80,7 @@ class Loop:
     v_diode: np.ndarray | None = None
     v_fast: np.ndarray | None = None
     bridge: str = ""
+    mixed: MixedDecay | None = None
 
     def diode(self, drive: Drive):
         """The freewheel diode's drop at each point (V)."""
@@ -175,9 +179,13 @@ def loop(drive: Drive, supply, coil_temp, r_factor=1.0, l_factor=1.0, path: str 
     supply, r_on, r_off, v_off, inductance, r_coil, v_diode, v_fast = arrays
     if curve:   # a saturating coil: its curve, scaled by the tolerance (model.flux)
         inductance = flux.FluxCoil(curve, inductance)
+    mixed = None
+    if kind == "slow" and drive.hold.fast_fraction > 0:
+        mixed = MixedDecay(drive.hold.fast_fraction, r_coil + r_sense + 0.0 * supply,
+                           supply + 2.0 * v_diode)
     return Loop(v_on=supply, r_on=r_on, r_off=r_off, v_off=v_off, inductance=inductance,
                 r_coil=r_coil, supply=supply, bypassed=bypassed, v_diode=v_diode, v_fast=v_fast,
-                bridge=kind)
+                bridge=kind, mixed=mixed)
 
 
 def freewheel_element_energy(drive: Drive, lp: Loop, charge, square):

@@ -14,6 +14,7 @@ release decays slowly until the bypass opens.
 
 from __future__ import annotations
 
+import dataclasses
 import io
 import math
 from dataclasses import dataclass, field
@@ -121,6 +122,9 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
 
     # Peak: full on from zero.
     i0 = peak_samples(peak_time, v, r_on, ind, big, ts, cs, ons, drive)
+    if lp.mixed is not None:
+        return _mixed_actuation(drive, lp, supply, coil_temp, peak_time, i0, duty, frequency,
+                                hold_time, r_factor, l_factor, points, label, ts, cs, ons)
 
     # Hold: per-period start currents by scalar recurrence, then vectorised sampling.
     t_hold, i_hold, on_hold, t_offedge, i_off, _ = hold_samples(
@@ -133,6 +137,31 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
     fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") if full_bridge(drive) else lp
     return release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_offedge, i_off, big, label,
                             release_lp=fast)
+
+
+def _mixed_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_time: float,
+                     i0: float, duty: float, frequency: float, hold_time: float, r_factor: float,
+                     l_factor: float, points: int, label: str, ts: list, cs: list,
+                     ons: list) -> Waveform:
+    """:func:`actuation`'s hold and release with a full bridge's mixed decay
+    (:mod:`coildrive.model.mixed_waveform`): the switches see the fast path's voltage
+    while the current flows into the bus."""
+    from .mixed_waveform import mixed_hold_samples
+
+    t_hold, i_hold, on_hold, fast_hold, t_off, i_off = mixed_hold_samples(
+        peak_time, i0, float(lp.v_on), float(lp.r_on), float(lp.r_off), float(lp.inductance),
+        duty, frequency, hold_time, points, lp.mixed)
+    n_peak = sum(len(t) for t in ts)
+    ts.append(t_hold)
+    cs.append(i_hold)
+    ons.append(on_hold)
+    fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
+    w = release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_off, i_off, 40 * points,
+                         label, release_lp=fast)
+    mask = np.zeros(len(w.time), bool)
+    mask[n_peak:n_peak + len(t_hold)] = fast_hold
+    v_fast = fast.switch_voltage(drive, w.current)
+    return dataclasses.replace(w, switch_voltage=np.where(mask, v_fast, w.switch_voltage))
 
 
 def _flux_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: float,

@@ -626,9 +626,12 @@ def hold_toml(drive: Drive, c: Candidate) -> str:
 # --------------------------------------------------------------------------- the sweep
 def check_tunable(drive: Drive, who: str) -> None:
     """Raise :class:`InputError` (naming the key) for a hold that tuning cannot step: a
-    current-mode hold, a closed-loop hold, a flux-linkage curve. ``who``: the start of the
+    current-mode hold, a closed-loop hold, a flux-linkage curve, a mixed-decay hold. ``who``: the start of the
     message (``"coildrive tune sweeps"``, ``"live tuning steps"``); the offline sweep and
     live tuning share these refusals."""
+    if drive.hold.mode == "latch":
+        raise InputError(drive.source, "hold.mode", f"{who} the PWM of a hold; a latching coil has "
+                         "none: coildrive design sizes its pulses")
     if drive.hold.mode != "voltage":
         raise InputError(drive.source, "hold.mode", f"{who} the PWM of a voltage-mode hold; for "
                          "mode = \"current\" run coildrive design (it sizes the thresholds)")
@@ -641,6 +644,9 @@ def check_tunable(drive: Drive, who: str) -> None:
                          "curve yet (the sweep would solve ~10^5 exact orbits): tune with "
                          "coil.inductance at the hold current's incremental value, then design "
                          "with the curve")
+    if drive.hold.fast_fraction > 0:
+        raise InputError(drive.source, "hold.fast_fraction", "tuning does not step a mixed-decay "
+                         "hold yet: tune with fast_fraction = 0, then design with the fraction")
 
 
 def tune(drive: Drive, options: TuneOptions | None = None) -> TuneResult:
