@@ -94,6 +94,21 @@ def test_driver_sets_the_phase_masks_around_every_switch_edge(tmp_path):
         assert lines[k + 1][0] == "g" and int(lines[k + 1][3]) == 0, lines[k + 1]
 
 
+def test_driver_refuses_mixed_decay_and_writes_nothing(tmp_path):
+    # the driver's bridge decays slowly in every off-time: a hold designed with a fast part
+    # needs a higher duty than it would hold at, so firmware-driver refuses it in one line
+    from conftest import run_cli
+
+    text = (EXAMPLES / "dosing-valve-bridge-24v.toml").read_text()
+    assert "[hold]\n" in text
+    drive = tmp_path / "mixed.toml"
+    drive.write_text(text.replace("[hold]\n", "[hold]\nfast_fraction = 0.3\n", 1))
+    r = run_cli("firmware-driver", str(drive), "--board", "bridge-m32-fast", "--out", str(tmp_path / "out"))
+    assert r.returncode == 2 and "hold.fast_fraction" in r.stderr and "Traceback" not in r.stderr
+    assert len(r.stderr.strip().splitlines()) == 1
+    assert not (tmp_path / "out").exists()
+
+
 @pytest.fixture(scope="module")
 def firmware(tmp_path_factory):
     """The bridge's driver as `firmware-driver` writes it, and a build cache that the

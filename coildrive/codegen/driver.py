@@ -95,6 +95,11 @@ class DriverView:
         #: a full bridge: the phase masks of the header drive its four switches
         #: (port_bridge), the enable (port_switch) opens all four at once
         self.bridge = d.topology is not None and d.topology.bridge is not None
+        if d.drive.hold.fast_fraction > 0:
+            raise InputError(d.drive.source or d.drive.name, "hold.fast_fraction",
+                             f"{d.drive.hold.fast_fraction:g}: this driver's bridge holds in slow "
+                             "decay only (its hold duty would be wrong for mixed decay), expected "
+                             "fast_fraction left out for firmware-driver and emulate --firmware")
         if self.regulation not in ("fixed", "supply_table", "current", "closed_loop"):
             raise InputError(d.drive.source or d.drive.name, "hold.regulation",
                              f"{self.regulation!r}: this driver runs the fixed, supply-table, "
