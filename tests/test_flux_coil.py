@@ -236,7 +236,9 @@ def test_bad_curves_are_one_line_exit_2(tmp_path, edit, key):
     assert "coil." in lines[0] or "hold.mode" in lines[0], lines[0]
 
 
-def test_armature_with_a_curve_is_refused(tmp_path):
+def test_armature_inductances_with_a_curve_are_refused(tmp_path):
+    """With a curve the armature's inductances are the curves' slopes: giving both is
+    one line naming both keys (the open and seated curves: tests/test_armature_curves.py)."""
     latch = (EXAMPLES / "locker-latch-12v.toml").read_text()
     assert "[coil]" in latch
     text = latch.replace("[coil]", "[coil]\nflux_current = [0, 0.1, 0.2]\n"
@@ -245,7 +247,9 @@ def test_armature_with_a_curve_is_refused(tmp_path):
     path = tmp_path / "latch.toml"
     path.write_text(text.replace('board = "', 'board = "', 1))
     r = run_cli("design", str(path), cwd=EXAMPLES)
-    assert r.returncode == 2 and "[armature] is not supported yet" in r.stderr, r.stderr
+    lines = r.stderr.strip().splitlines()
+    assert r.returncode == 2 and len(lines) == 1, r.stderr
+    assert "armature.inductance_open and coil.flux_current" in lines[0], lines[0]
 
 
 @pytest.mark.parametrize("args", [("tune", str(EXAMPLE)), ("tune", str(EXAMPLE), "--port", "loop://")])

@@ -338,7 +338,7 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
             schedule.append((start + period, False, points))
     i_max = float(p.v_on[0] / p.r_on[0])
     t_un = float(decay_time(min(float(p.stay_current[0]), i_max), i_max, p.r_off[0], p.v_off[0],
-                            p.l_closed[0]))
+                            p.coil_closed[0] if p.curves is not None else p.l_closed[0]))
     bound = float(time_bound(t_un, p.l_closed[0], p.r_off[0], p.mass[0], p.stroke[0],
                               p.damping[0], p.preload[0] + p.load[0]))
 
@@ -355,23 +355,24 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     tr = None
     if peak_time > 0:
         # Fast path: seated at the end of the peak and the hold current never below the
-        # stay current -- then the hold is the closed-form PWM of the seated coil.
+        # stay current -- then the hold is the closed-form PWM of the seated coil (with
+        # the coil's two curves, the seated curve's tabulated exact segments).
         head = simulate(p, schedule[:1], method=method, points=points)
         i0 = float(head.current[-1])
         if head.state == "seated":
             v, r_on, r_off, v_off = (float(a[0]) for a in (p.v_on, p.r_on, p.r_off, p.v_off))
+            seated = float(p.l_closed[0]) if p.curves is None else p.coil_closed[0]
             th, ih, oh, t_cut, i_cut, starts = hold_samples(
-                peak_time, i0, v, r_on, r_off, v_off, float(p.l_closed[0]), duty, frequency,
-                hold_time, points)
+                peak_time, i0, v, r_on, r_off, v_off, seated, duty, frequency, hold_time, points)
             if split and t_cut - t_on < t_open < t_cut and not np.any(th == t_open):
                 # a sample where the bypass opens, inside the last on-time
                 at = int(np.searchsorted(th, t_open))
-                i_open = rise_current(t_open - (t_cut - t_on), float(starts[-1]), v, r_on,
-                                      float(p.l_closed[0]))
+                i_open = float(rise_current(t_open - (t_cut - t_on), float(starts[-1]), v, r_on,
+                                            seated))
                 th, ih, oh = np.insert(th, at, t_open), np.insert(ih, at, i_open), np.insert(oh, at, 1.0)
             if float(np.min(starts)) >= float(p.stay_current[0]):
                 tail = simulate(p, release_segments(t_cut), state="seated",
-                                flux=float(p.l_closed[0]) * i_cut, method=method, points=points,
+                                flux=float(p.flux_closed(i_cut)[0]), method=method, points=points,
                                 stop=lambda r: r.state == "open" and not r.live, t0=t_cut,
                                 release_params=p_rel)
                 zeros = np.zeros_like(th)
@@ -430,28 +431,50 @@ def hold_samples(t_start: float, i0: float, v: float, r_on: float, r_off: float,
     period = 1.0 / frequency
     n = max(1, int(round(hold_time * frequency)))
     t_on, t_off = duty * period, (1.0 - duty) * period
-    e_on, e_off = math.exp(-t_on * r_on / ind), math.exp(-t_off * r_off / ind)
-    a, b = v / r_on, v_off / r_off
+    if isinstance(ind, FluxCoil):
+        # a saturating coil (the seated curve of an armature's two): its segments read
+        # from one point's tabulated exact times (model.flux_waveform.Track)
+        from .flux_waveform import Track
+
+        tr = Track(ind, v, r_on, r_off, v_off, i0)
+        rise, decay, to_zero = tr.rise, (lambda t, i: tr.decay(i, t)), tr.to_zero
+    else:
+        def rise(i, t):
+            return rise_current(t, i, v, r_on, ind)
+
+        def decay(t, i):
+            return decay_current(t, i, r_off, v_off, ind)
+
+        def to_zero(i):
+            return decay_time(0.0, i, r_off, v_off, ind)
     starts = np.empty(n)
     i = i0
-    for k in range(n):
-        starts[k] = i
-        top = a + (i - a) * e_on
-        i = max((top + b) * e_off - b, 0.0) if k < n - 1 else top
+    if isinstance(ind, FluxCoil):
+        for k in range(n):
+            starts[k] = i
+            top = float(rise(i, t_on))
+            i = float(decay(t_off, top)) if k < n - 1 else top
+    else:
+        e_on, e_off = math.exp(-t_on * r_on / ind), math.exp(-t_off * r_off / ind)
+        a, b = v / r_on, v_off / r_off
+        for k in range(n):
+            starts[k] = i
+            top = a + (i - a) * e_on
+            i = max((top + b) * e_off - b, 0.0) if k < n - 1 else top
     frac = np.linspace(0.0, 1.0, points + 1)
     t0 = peak_time + np.arange(n)[:, None] * period
     on_t = np.broadcast_to(frac[None, :] * t_on, (n, points + 1))
-    on_i = rise_current(on_t, starts[:, None], v, r_on, ind)
+    on_i = rise(starts[:, None], on_t)
     tops = on_i[:, -1]
     # The off segment's end is the next period's first sample.
     off_t = np.broadcast_to(frac[None, 1:-1] * t_off, (n, points - 1))
-    off_i = decay_current(off_t, tops[:, None], r_off, v_off, ind)
+    off_i = decay(off_t, tops[:, None])
     # Where the diode blocks (DCM), put a sample exactly at the zero crossing; in CCM the
     # extra sample goes mid-way through the last interval so every row has the same count.
-    t_zero = decay_time(0.0, tops, r_off, v_off, ind)
+    t_zero = to_zero(tops)
     extra = np.where(t_zero < t_off, t_zero, t_off * (points - 0.5) / points)
     off_t = np.concatenate([off_t, extra[:, None]], axis=1)
-    off_i = np.concatenate([off_i, decay_current(extra, tops, r_off, v_off, ind)[:, None]], axis=1)
+    off_i = np.concatenate([off_i, decay(extra, tops)[:, None]], axis=1)
     order = np.argsort(off_t, axis=1, kind="stable")
     off_t = np.take_along_axis(off_t, order, axis=1)
     off_i = np.take_along_axis(off_i, order, axis=1)
