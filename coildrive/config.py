@@ -1138,9 +1138,6 @@ def _flux_curve_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel
     if hold.mode == "current":
         raise InputError(source, "hold.mode", "\"current\" with a flux-linkage curve "
                          "(coil.flux_current) is not supported yet: use mode = \"voltage\"")
-    if freewheel.split_decay:
-        raise InputError(source, "freewheel.split_decay", "split decay with a flux-linkage curve "
-                         "(coil.flux_current) is not supported yet")
 
 
 def _mechanics_currents(arm: Armature, coil: Coil) -> dict[str, float]:

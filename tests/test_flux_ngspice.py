@@ -151,3 +151,39 @@ def test_pwm_orbit_matches_ngspice(tmp_path, target, frequency, points):
     lin = pwm_steady_state(duty, f, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance.small_signal())
     print(f"flux orbit vs ngspice: mean {float(ss.mean):.6e}/{res['iavg']:.6e} A, ripple "
           f"{float(ss.ripple):.6e}/{ripple:.6e} A; linear ripple {float(lin.ripple):.6e} A")
+
+
+def test_split_decay_with_a_curve_matches_ngspice(tmp_path):
+    """Split decay (freewheel.split_decay) with the saturating curve: the split-decay
+    circuit of tests/test_split_decay.py (a real bypass switch across the Zener) with the
+    flux-controlled coil above; the hold follows the curve's exact orbit through the slow
+    loop (mean 1 %, ripple 3 %, diode and bypass powers 2 and 3 %, no Zener power), the
+    release after the bypass opens the fast one (drop-out time 1 % plus one step)."""
+    from coildrive.config import load_drive
+    from coildrive.design import design
+    from coildrive.design.evaluate import release_figures
+    from coildrive.model.losses import hold_losses
+    from conftest import EXAMPLES
+    from test_split_decay import check_split_against_ngspice, split_netlist
+
+    flux = ", ".join(f'"{x * 1e3:.6f} mWb"' for x in _psi(CURVE_I))
+    text = (EXAMPLES / "wash-valve-split-24v.toml").read_text().replace(
+        'inductance = "70 mH"', f"flux_current = {CURVE_I}\nflux_linkage = [{flux}]", 1)
+    path = tmp_path / "split-curve.toml"
+    path.write_text(text)
+    drive = load_drive(path)
+    assert drive.coil.flux_current and drive.freewheel.split_decay, "precondition"
+    supply, temp = 24.0, 70.0
+    d = design(drive)
+    duty, f = d.hold.duty, d.hold.frequency_hz
+    lp = loop(drive, supply, temp)
+    fast = loop(drive, supply, temp, path="release")
+    assert isinstance(lp.inductance, FluxCoil)
+    ss = pwm_steady_state(duty, f, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
+    l_hold = float(lp.inductance.incremental(float(ss.mean)))
+    assert l_hold < 0.75 * float(lp.inductance.small_signal()), "precondition: the hold is on the knee"
+    loss = hold_losses(drive, lp, ss, f)
+    t_drop, _, _, _ = release_figures(drive, lp, fast, ss.i_max)
+    netlist, (t_cut, step) = split_netlist(drive, supply, temp, duty, f, t_drop, cycles=10.0)
+    res = _run(tmp_path, "split-flux", _flux_netlist(netlist, lp))
+    check_split_against_ngspice(res, drive, supply, temp, ss, loss, t_drop, t_cut, step)

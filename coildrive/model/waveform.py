@@ -99,13 +99,13 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
         return armature_actuation(drive, supply, coil_temp, peak_time, duty, frequency,
                                   hold_time, r_factor, l_factor, points, label)
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
+    if split_decay(drive):
+        return _split_actuation(drive, lp, supply, coil_temp, peak_time, duty, frequency,
+                                hold_time, r_factor, l_factor, points, label)
     if isinstance(lp.inductance, FluxCoil):   # a saturating coil: its own sampling
         return _flux_actuation(drive, lp, supply, peak_time, duty, frequency, hold_time,
                                points, label)
     v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
-    if split_decay(drive):
-        return _split_actuation(drive, lp, supply, coil_temp, peak_time, duty, frequency,
-                                hold_time, r_factor, l_factor, points, label)
     big = 40 * points
     ts, cs, ons = [], [], []
 
@@ -123,6 +123,14 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
     fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") if full_bridge(drive) else lp
     return release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_offedge, i_off, big, label,
                             release_lp=fast)
+
+
+def one_point(inductance):
+    """The coil of one operating point: H as a float, or a saturating coil's
+    :class:`~coildrive.model.flux.FluxCoil` with a scalar scale."""
+    if isinstance(inductance, FluxCoil):
+        return inductance.with_scale(float(np.ravel(inductance.scale)[0]))
+    return float(inductance)
 
 
 def _flux_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: float,
@@ -190,7 +198,8 @@ def _split_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_tim
     """:func:`actuation` with split decay: hold through the slow loop ``lp``, release
     through the fast one, the bypass opening as ``freewheel.bypass_lead`` says."""
     fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
-    v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
+    v, r_on, r_off, v_off = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off))
+    ind = one_point(lp.inductance)
     big = 40 * points
     ts, cs, ons = [], [], []
     i0 = peak_samples(peak_time, v, r_on, ind, big, ts, cs, ons, drive)
@@ -219,7 +228,8 @@ def split_release(drive: Drive, lp, fast, t_cut: float, i_cut: float, t_last: fl
     ``-bypass_lead`` s after it, the current decaying slowly until then. Returns
     ``(bypass opening time s, time the current reaches zero s)``.
     """
-    v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
+    v, r_on, r_off, v_off = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off))
+    ind = one_point(lp.inductance)
     f_off, f_v = float(fast.r_off), float(fast.v_off)
     lead = drive.freewheel.bypass_lead
     if lead >= 0:
