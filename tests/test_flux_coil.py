@@ -252,8 +252,8 @@ def test_armature_inductances_with_a_curve_are_refused(tmp_path):
     assert "armature.inductance_open and coil.flux_current" in lines[0], lines[0]
 
 
-@pytest.mark.parametrize("args", [("tune", str(EXAMPLE)), ("tune", str(EXAMPLE), "--port", "loop://")])
-def test_tune_refuses_a_curve_in_one_line(args):
+@pytest.mark.parametrize("args", [("tune", str(EXAMPLE), "--port", "loop://")])
+def test_live_tune_refuses_a_curve_in_one_line(args):
     r = run_cli(*args)
     assert r.returncode == 2, (r.stdout, r.stderr)
     lines = r.stderr.strip().splitlines()
