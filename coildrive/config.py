@@ -916,8 +916,10 @@ def _read_armature(s: _Section, curve: str | None = None) -> Armature:
                                  "inductance (the curves' slopes); keep the curves, leave the "
                                  "inductances out")
     arm = Armature(
-        inductance_open=s.quantity("inductance_open", "inductance", positive=True) if curve is None else 0.0,
-        inductance_closed=s.quantity("inductance_closed", "inductance", positive=True) if curve is None else 0.0,
+        # with the curves: their first slopes, filled in once the coil is read
+        inductance_open=0.0 if curve else s.quantity("inductance_open", "inductance", positive=True),
+        inductance_closed=0.0 if curve else s.quantity("inductance_closed", "inductance",
+                                                       positive=True),
         stroke=s.quantity("stroke", "length", positive=True),
         mass=s.quantity("mass", "mass", positive=True),
         spring_preload=s.quantity("spring_preload", "force", nonnegative=True),
@@ -1068,9 +1070,10 @@ def _read_seated_curve(s: _Section, armature: Armature | None, table):
 
 
 def _check_open_below_seated(s: _Section, open_, seated) -> None:
-    """The open curve's flux at or below the seated one's at every table current (both
-    straight between points and past their ends, at their end slopes), starting strictly
-    below: the closing force then grows with the flux linkage (docs/coil-model.md)."""
+    """The open curve's flux at or below the seated one's at every current of both tables
+    and at ten times the larger last one (each table read straight between its points and
+    past its end at its last segment's slope), the first slopes strictly: the closing
+    force then grows with the flux linkage (docs/coil-model.md)."""
     import numpy as np
 
     def psi(table, i):
