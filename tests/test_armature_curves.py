@@ -68,10 +68,16 @@ def with_curves(p, open_=None, seated=None):
 
 
 # --------------------------------------------------------------------------- linear
-def test_two_straight_curves_are_the_linear_armature():
+@pytest.mark.parametrize("damping", [0.4, 30.0], ids=["explicit", "stiff"])
+def test_two_straight_curves_are_the_linear_armature(damping):
     """Straight curves at L_o and L_c give today's L(x) = L_c / (1 + beta x) model: the
-    same pull-in, dip, release and energies to 1e-9 (the blend is the gap's reluctance)."""
-    lin = latch(v_on=np.array([10.8, 12.0, 13.2]), l_closed=latch().l_closed[0] * np.array([0.9, 1.0, 1.1]))
+    same pull-in, dip, release and energies to 1e-9 (the blend is the gap's reluctance),
+    through the Dormand-Prince steps and, heavily damped, the Rosenbrock ones."""
+    from coildrive.model.armature_flight import is_stiff
+
+    lin = latch(v_on=np.array([10.8, 12.0, 13.2]), damping=damping,
+                l_closed=latch().l_closed[0] * np.array([0.9, 1.0, 1.1]))
+    assert bool(is_stiff(lin, 0.5)[0]) == (damping > 1), "precondition: the stepper of the case"
     amps = np.array([0.0, 1.0, 3.0])
     cur = with_curves(lin, (amps, L_OPEN * amps), (amps, L_SEATED * amps))
     a, b = pull_in(lin, peak_time=0.05), pull_in(cur, peak_time=0.05)

@@ -126,7 +126,7 @@ class GapCurves:
     def flux_for_force(self, force, iterations: int = 100):
         """Flux linkage Wb whose closing force is ``force`` N (0 where ``force <= 0``):
         Newton on the monotone ``F_close(psi)`` with its exact slope, bracketed (a step
-        leaving the bracket bisects), to 1e-13 relative."""
+        leaving the bracket bisects), to 1e-13 relative in the flux or the force."""
         force = np.array(np.broadcast_arrays(np.asarray(force, float), self.scale)[0], float)
         want = np.maximum(force, 0.0)
         lo_l, lc_l = self.small_signal()
@@ -144,8 +144,11 @@ class GapCurves:
                 nxt = lam - g / df
             bad = ~np.isfinite(nxt) | (nxt <= lo) | (nxt >= hi)
             nxt = np.where(bad, np.where(np.isfinite(hi), 0.5 * (lo + hi), 2.0 * lam + 1e-12), nxt)
-            done = np.all(np.abs(nxt - lam) <= 1e-13 * np.maximum(lam, 1e-300))
-            lam = nxt
+            # done: each step below 1e-13 of the flux, or the force met to rounding (the
+            # force is a difference of two energies: its last digits are noise)
+            done = np.all((np.abs(nxt - lam) <= 1e-13 * np.maximum(lam, 1e-300))
+                          | (np.abs(g) <= 1e-13 * np.maximum(want, 1e-300)))
+            lam = np.where(np.abs(g) <= 1e-13 * np.maximum(want, 1e-300), lam, nxt)
             if done:
                 break
         return np.where(want > 0, lam, 0.0)
