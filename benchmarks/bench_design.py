@@ -245,13 +245,19 @@ def bench_flux_design(runs: int = 5) -> None:
         linear = Path(tmp) / "linear.toml"
         linear.write_text(text.replace('reference_temp = "20 degC"',
                                        'reference_temp = "20 degC"\ninductance = "121.2 mH"'))
-        cmds = {"linear": [sys.executable, "-m", "coildrive", "design", str(linear), "--json"],
-                "curve": [sys.executable, "-m", "coildrive", "design", str(sat), "--json"]}
-        cpu, wall = _paired(cmds, runs, env)
+        _design_pair("a flux-linkage curve", linear, sat, "the linear coil", runs, env)
+
+
+def _design_pair(what: str, linear: Path, curve: Path, base: str, runs: int, env: dict) -> None:
+    """``coildrive design --json`` of ``linear`` and ``curve``, paired: median CPU and wall
+    of each, printed against the 2 s target."""
+    cmds = {"linear": [sys.executable, "-m", "coildrive", "design", str(linear), "--json"],
+            "curve": [sys.executable, "-m", "coildrive", "design", str(curve), "--json"]}
+    cpu, wall = _paired(cmds, runs, env)
     for name, data in (("CPU", cpu), ("wall", wall)):
         lin, cur = statistics.median(data["linear"]), statistics.median(data["curve"])
-        print(f"design with a flux-linkage curve ({name}, median of {runs} paired): {cur:.3f} s "
-              f"(target < 2 s) vs the linear coil {lin:.3f} s: ratio {cur / lin:.2f}")
+        print(f"design with {what} ({name}, median of {runs} paired): {cur:.3f} s "
+              f"(target < 2 s) vs {base} {lin:.3f} s: ratio {cur / lin:.2f}")
 
 
 def bench_armature_curves_design(runs: int = 5) -> None:
@@ -283,14 +289,8 @@ def bench_armature_curves_design(runs: int = 5) -> None:
     with tempfile.TemporaryDirectory() as tmp:
         curves = Path(tmp) / "latch-curves.toml"
         curves.write_text(text + "\n")
-        cmds = {"linear": [sys.executable, "-m", "coildrive", "design", str(latch), "--json"],
-                "curves": [sys.executable, "-m", "coildrive", "design", str(curves), "--json"]}
-        cpu, wall = _paired(cmds, runs, env)
-    for name, data in (("CPU", cpu), ("wall", wall)):
-        lin, cur = statistics.median(data["linear"]), statistics.median(data["curves"])
-        print(f"design with [armature] and two flux-linkage curves ({name}, median of {runs} "
-              f"paired): {cur:.3f} s (target < 2 s) vs the linear L(x) {lin:.3f} s: ratio "
-              f"{cur / lin:.2f}")
+        _design_pair("[armature] and two flux-linkage curves", latch, curves, "the linear L(x)",
+                     runs, env)
 
 
 def main() -> None:
