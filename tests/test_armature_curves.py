@@ -350,9 +350,10 @@ def test_design_with_two_straight_curves_is_the_linear_design(tmp_path):
 
 def test_design_simulate_and_emulate_a_saturating_latch(tmp_path):
     """The saturating latch end to end: design seats it at every corner and holds it,
-    simulate shows the seat and the return to the open stop, and the virtual bench
-    device streams the actuation with the position switch closing then opening (the
-    emulator shares the model: plumbing, not numbers)."""
+    simulate shows the seat and the return to the open stop, the virtual bench device
+    streams the actuation with the position switch closing then opening, and check
+    passes a synthetic capture of it (the emulator and the synthetic captures share the
+    model: plumbing, not numbers)."""
     from coildrive.bench.device import DeviceOptions, VirtualDevice
     from coildrive.bench.messages import Event, EventKind
     from coildrive.bench.protocol import FrameDecoder
@@ -379,6 +380,17 @@ def test_design_simulate_and_emulate_a_saturating_latch(tmp_path):
         msgs += dec.feed(dev.read(t))
     switch = [m.value for m in msgs if isinstance(m, Event) and m.kind == EventKind.SWITCH]
     assert switch[:2] == [1, 0], "seats during the peak, opens after the release"
+    # check: a synthetic capture of the design passes; a stuck armature (the open curve
+    # alone) fails on the missing dip
+    from coildrive.bench.check import FAIL, check_capture
+    from coildrive.bench.synth import synth_design_capture
+
+    cap = synth_design_capture(des, actuations=2, hold_time=0.01, noise_codes=1.0, seed=11)
+    report = check_capture(cap, des)
+    assert report.ok, [(i.name, i.status, i.detail) for i in report.items]
+    stuck = synth_design_capture(des, actuations=1, hold_time=0.01, noise_codes=1.0, seed=2,
+                                 fault="stuck")
+    assert {i.name: i.status for i in check_capture(stuck, des).items}["seated_time"] == FAIL
 
 
 @pytest.mark.parametrize("kwargs, key", [
