@@ -91,6 +91,8 @@ BOUNDS: dict[str, tuple[float, float, str]] = {
     "coil.release_time": (1e-6, 10.0, "time"),
     "coil.flux_current": (0.0, 1000.0, "current"),
     "coil.flux_linkage": (0.0, 1000.0, "flux_linkage"),
+    "coil.seated_current": (0.0, 1000.0, "current"),
+    "coil.seated_linkage": (0.0, 1000.0, "flux_linkage"),
     "supply.min": (0.5, 1000.0, "voltage"),
     "supply.nominal": (0.5, 1000.0, "voltage"),
     "supply.max": (0.5, 1000.0, "voltage"),
@@ -221,6 +223,8 @@ class Coil:
     (Wb) tabulate its flux linkage against current, from (0, 0), both rising; empty for
     the linear coil. With a curve, ``inductance`` is the slope of its first segment
     (the small-signal value, for reports) and the tolerance scales the whole curve.
+    With ``[armature]`` that curve is the open one (armature blocked open) and
+    ``seated_current`` (A) / ``seated_linkage`` (Wb) tabulate the seated coil's.
     """
 
     resistance: float
@@ -238,6 +242,8 @@ class Coil:
     release_time: float = 0.0
     flux_current: tuple[float, ...] = ()
     flux_linkage: tuple[float, ...] = ()
+    seated_current: tuple[float, ...] = ()
+    seated_linkage: tuple[float, ...] = ()
 
     @property
     def derived(self) -> tuple[str, ...]:
@@ -386,6 +392,12 @@ class Armature:
     file leaves ``pull_in.current`` or ``hold.current`` out (see docs/armature.md);
     ``derived`` names the keys so filled in (``"pull_in.current"``, ``"hold.current"``,
     ``"release.current"``).
+
+    With a saturating coil (``coil.flux_current`` and ``coil.seated_current``, see
+    docs/coil-model.md) ``open_current``/``open_linkage`` and
+    ``seated_current``/``seated_linkage`` are those two curves (A, Wb), and the two
+    inductances are their first segments' slopes (small-signal, for reports and time
+    scales); empty for the linear ``L(x)``.
     """
 
     inductance_open: float
@@ -399,6 +411,10 @@ class Armature:
     restitution: float = 0.0
     current_margin: float = 1.25
     derived: tuple[str, ...] = ()
+    open_current: tuple[float, ...] = ()
+    open_linkage: tuple[float, ...] = ()
+    seated_current: tuple[float, ...] = ()
+    seated_linkage: tuple[float, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -650,7 +666,9 @@ class Drive:
 #: Keys added after the first release: left out of the input hash while they hold their
 #: default, so that files which do not use them keep their hash (and headers their bytes).
 _LATER_FIELDS = (
-    (("coil",), Coil, _DATASHEET_KEYS + ("stated_temp", "flux_current", "flux_linkage")),
+    (("coil",), Coil, _DATASHEET_KEYS + ("stated_temp", "flux_current", "flux_linkage",
+                                         "seated_current", "seated_linkage")),
+    (("armature",), Armature, ("open_current", "open_linkage", "seated_current", "seated_linkage")),
     (("hold",), Hold, _CURRENT_MODE_KEYS + ("regulation", "fast_fraction")),
     (("thermal",), Thermal, ("capacity",)),
     (("pull_in",), PullIn, ("current_margin", "settle_time", "compensate")),
@@ -941,10 +959,21 @@ def _read_duty(s: _Section) -> Duty:
     return Duty(on, off)
 
 
-def _read_armature(s: _Section) -> Armature:
+def _read_armature(s: _Section, curve: str | None = None) -> Armature:
+    """``[armature]``; ``curve`` names the coil's flux-curve key when the file has one
+    (the two inductances then come from the curves: giving them too is an error)."""
+    if curve is not None:
+        for key in ("inductance_open", "inductance_closed"):
+            if key in s.table:
+                src, full = s.where(key)
+                raise InputError(src, f"{full} and coil.{curve}", "both give the armature's "
+                                 "inductance (the curves' slopes); keep the curves, leave the "
+                                 "inductances out")
     arm = Armature(
-        inductance_open=s.quantity("inductance_open", "inductance", positive=True),
-        inductance_closed=s.quantity("inductance_closed", "inductance", positive=True),
+        # with the curves: their first slopes, filled in once the coil is read
+        inductance_open=0.0 if curve else s.quantity("inductance_open", "inductance", positive=True),
+        inductance_closed=0.0 if curve else s.quantity("inductance_closed", "inductance",
+                                                       positive=True),
         stroke=s.quantity("stroke", "length", positive=True),
         mass=s.quantity("mass", "mass", positive=True),
         spring_preload=s.quantity("spring_preload", "force", nonnegative=True),
@@ -954,7 +983,7 @@ def _read_armature(s: _Section) -> Armature:
         restitution=s.fraction("restitution", 0.0),
         current_margin=s.quantity("current_margin", "dimensionless", 1.25),
     )
-    if arm.inductance_closed < arm.inductance_open:
+    if curve is None and arm.inductance_closed < arm.inductance_open:
         raise s.fail("inductance_closed", "is below inductance_open, expected the closed "
                      "(seated) inductance to be the larger")
     if not arm.spring_preload + arm.load_force > 0:
@@ -1040,6 +1069,7 @@ def _read_coil(s: _Section, armature: Armature | None) -> tuple[Coil, dict[str, 
                              f"outside {bounds_text(section + '.current')}")
             sheet[section] = value
     table = _read_flux_curve(s, armature)
+    seated = _read_seated_curve(s, armature, table)
     coil = Coil(
         resistance=resistance,
         reference_temp=reference_temp,
@@ -1053,6 +1083,7 @@ def _read_coil(s: _Section, armature: Armature | None) -> tuple[Coil, dict[str, 
         drop_out_voltage=drop_out, stated_temp=stated,
         operate_time=optional("operate_time", "time"), release_time=optional("release_time", "time"),
         flux_current=table[0] if table else (), flux_linkage=table[1] if table else (),
+        seated_current=seated[0] if seated else (), seated_linkage=seated[1] if seated else (),
     )
     s.finish()
     return coil, sheet
@@ -1069,14 +1100,59 @@ def _read_flux_curve(s: _Section, armature: Armature | None):
         return None
     if "inductance" in s.table:
         raise _both(s, "inductance", keys[0], "the coil's inductance (the curve's slope)")
-    if armature is not None:
-        raise s.fail(keys[0], "a flux-linkage curve with [armature] is not supported yet: give "
-                     "coil.inductance (or armature.inductance_open/closed) instead")
-    for key, other in (("flux_current", "flux_linkage"), ("flux_linkage", "flux_current")):
+    return _read_table(s, "flux_current", "flux_linkage")
+
+
+def _read_seated_curve(s: _Section, armature: Armature | None, table):
+    """``seated_current`` and ``seated_linkage`` (A, Wb): the seated coil's curve, needed
+    with ``[armature]`` and a flux-linkage curve, an error anywhere else; ``None`` when
+    there is none. The open curve must lie below it (the gap only adds reluctance)."""
+    keys = [k for k in ("seated_current", "seated_linkage") if k in s.table]
+    if armature is None or table is None:
+        if keys:
+            raise s.fail(keys[0], "is the seated curve of a moving armature's saturating coil: "
+                         "expected [armature] and coil.flux_current/flux_linkage (the open "
+                         "curve) with it, or leave seated_current/seated_linkage out")
+        return None
+    if not keys:
+        raise s.fail("flux_current", "with [armature] is the open (armature blocked open) curve; "
+                     "expected the seated coil's too, as coil.seated_current and "
+                     "coil.seated_linkage (fit --flux-curve --seated prints them)")
+    seated = _read_table(s, "seated_current", "seated_linkage")
+    _check_open_below_seated(s, table, seated)
+    return seated
+
+
+def _check_open_below_seated(s: _Section, open_, seated) -> None:
+    """The open curve's flux at or below the seated one's at every current of both tables
+    and at ten times the larger last one (each table read straight between its points and
+    past its end at its last segment's slope), the first slopes strictly: the closing
+    force then grows with the flux linkage (docs/coil-model.md)."""
+    import numpy as np
+
+    def psi(table, i):
+        x, y = (np.asarray(c, float) for c in table)
+        end = (y[-1] - y[-2]) / (x[-1] - x[-2])
+        return np.where(i <= x[-1], np.interp(i, x, y), y[-1] + end * (i - x[-1]))
+
+    grid = np.union1d(open_[0], seated[0])[1:]
+    grid = np.append(grid, 10.0 * grid[-1])
+    gap = psi(seated, grid) - psi(open_, grid)
+    first = seated[1][1] / seated[0][1] > open_[1][1] / open_[0][1]
+    if not first or np.any(gap < 0):
+        at = float(grid[int(np.argmin(gap))]) if first else 0.0
+        raise s.fail("seated_linkage", f"lies below the open curve (coil.flux_linkage) near "
+                     f"{at:g} A, expected the seated coil's flux linkage above the open one's at "
+                     "every current (the gap only adds reluctance)")
+
+
+def _read_table(s: _Section, current_key: str, flux_key: str):
+    """A current/flux-linkage table from two keys of ``[coil]``: ``(currents, fluxes)``."""
+    for key, other in ((current_key, flux_key), (flux_key, current_key)):
         if other not in s.table:
             raise s.fail(key, f"needs coil.{other} too (the table's other column)")
     columns = []
-    for key, dimension in (("flux_current", "current"), ("flux_linkage", "flux_linkage")):
+    for key, dimension in ((current_key, "current"), (flux_key, "flux_linkage")):
         raw = s._get(key, _MISSING)
         src, full = s.where(key)
         low, high = FLUX_POINTS
@@ -1090,11 +1166,11 @@ def _read_flux_curve(s: _Section, armature: Armature | None):
                          "monotone: one current for each flux)")
         columns.append(values)
     if len(columns[0]) != len(columns[1]):
-        raise s.fail("flux_linkage", f"has {len(columns[1])} values for the {len(columns[0])} of "
-                     "coil.flux_current, expected one flux per current")
+        raise s.fail(flux_key, f"has {len(columns[1])} values for the {len(columns[0])} of "
+                     f"coil.{current_key}, expected one flux per current")
     slope = columns[1][1] / columns[0][1]
     if not _in_bounds(slope, "coil.inductance"):
-        raise s.fail("flux_linkage", f"starts with a slope of {slope:g} H, outside "
+        raise s.fail(flux_key, f"starts with a slope of {slope:g} H, outside "
                      f"{bounds_text('coil.inductance')}")
     return columns[0], columns[1]
 
@@ -1119,9 +1195,6 @@ def _flux_curve_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel
     if hold.mode == "current":
         raise InputError(source, "hold.mode", "\"current\" with a flux-linkage curve "
                          "(coil.flux_current) is not supported yet: use mode = \"voltage\"")
-    if freewheel.split_decay:
-        raise InputError(source, "freewheel.split_decay", "split decay with a flux-linkage curve "
-                         "(coil.flux_current) is not supported yet")
 
 
 def _mechanics_currents(arm: Armature, coil: Coil) -> dict[str, float]:
@@ -1394,8 +1467,18 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
             raise InputError(source, "board", err.message) from None
     brd = load_board(board_path)
 
-    armature = _read_armature(_section(source, data, "armature")) if "armature" in data else None
+    coil_keys = data.get("coil") if isinstance(data.get("coil"), dict) else {}
+    curve_key = next((k for k in ("flux_current", "flux_linkage") if k in coil_keys), None)
+    armature = (_read_armature(_section(source, data, "armature"), curve_key)
+                if "armature" in data else None)
     coil, sheet = _read_coil(_section(source, data, "coil"), armature)
+    if armature is not None and coil.seated_current:
+        # the armature's two inductances: the curves' first slopes (small-signal)
+        armature = dataclasses.replace(
+            armature, inductance_open=coil.flux_linkage[1] / coil.flux_current[1],
+            inductance_closed=coil.seated_linkage[1] / coil.seated_current[1],
+            open_current=coil.flux_current, open_linkage=coil.flux_linkage,
+            seated_current=coil.seated_current, seated_linkage=coil.seated_linkage)
     s = _section(source, data, "supply")
     supply = Supply(s.quantity("min", "voltage", positive=True),
                     s.quantity("nominal", "voltage", positive=True),
@@ -1429,7 +1512,8 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
     s.finish()
     duty = _read_duty(_section(source, data, "duty")) if "duty" in data else None
     # With [armature], the currents the file leaves out come from the force balance.
-    need = _mechanics_currents(armature, coil) if armature is not None else None
+    need = (None if armature is None else {} if armature.seated_current else
+            _mechanics_currents(armature, coil))
     derived: list[str] = []
 
     def current(sec_: _Section, key: str, mech: float | None) -> float:
@@ -1441,6 +1525,10 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
             return sheet[sec_.name]
         if need is None or key in sec_.table:
             return sec_.quantity(key, "current", positive=True)
+        if armature.seated_current:
+            raise sec_.fail(key, "missing: with the coil's two curves (coil.seated_current) the "
+                            "force-balance currents are not filled in; give a value (design "
+                            "shows the mechanics' own)")
         sec_.used.add(key)
         if not mech > 0:
             raise sec_.fail(key, "missing, and the mechanics need none (spring + load do not "
@@ -1454,7 +1542,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
 
     optional = armature is not None
     s = _section(source, data, "pull_in", required=not (optional or "pull_in" in sheet))
-    pull_in = PullIn(current(s, "current", None if need is None else need["pull_in"]),
+    pull_in = PullIn(current(s, "current", None if need is None else need.get("pull_in")),
                      s.quantity("margin", "dimensionless", 1.5),
                      # with [armature] the seat time comes from the force balance itself and
                      # pull_in.current carries armature.current_margin: no second margin by default
@@ -1475,7 +1563,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
         if name in data:
             raise InputError(source, name, f"[{name}] is for a latching coil only, expected it left "
                              "out (or [hold] mode = \"latch\")")
-    hold = Hold(current(s, "current", None if need is None else need["hold"]),
+    hold = Hold(current(s, "current", None if need is None else need.get("hold")),
                 s.quantity("frequency", "frequency", positive=True),
                 s.choice("mode", HOLD_MODES, "voltage"),
                 s.fraction("frequency_tolerance", 0.01))
@@ -1491,7 +1579,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
                      f"({pull_in.current:g} A), expected hold < pull-in")
     s.finish()
     s = _section(source, data, "release", required=not (optional or "release" in sheet))
-    release = Release(current(s, "current", None if need is None else need["release"]))
+    release = Release(current(s, "current", None if need is None else need.get("release")))
     if release.current >= hold.current:
         what = " (derived from the mechanics)" if "release.current" in derived else ""
         raise s.fail("current", f"{release.current:g} A{what} drop-out is not below hold.current "

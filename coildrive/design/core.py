@@ -46,6 +46,8 @@ def _curve_range(drive: Drive, d: Design) -> Check:
     """A warning when the design's highest current (the over-current trip) lies past the
     flux-linkage table, where the curve goes on straight at its end slope."""
     top = drive.coil.flux_current[-1]
+    if drive.coil.seated_current:   # with [armature]: the shorter of the open and seated tables
+        top = min(top, drive.coil.seated_current[-1])
     highest = max(d.adc.trip_current_a, d.pull_in.peak_end_current_max_a)
     ok = highest <= top
     return Check("flux_curve_range", ok,

@@ -142,7 +142,6 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
 
     from ..model.armature import hold_force_current, params_from_loop
     from ..model.armature_runs import late_release, peak_current_closed_form, pull_in, release
-    from ..model.magnet import stroke_current
 
     shape = np.shape(lp.v_on)
     fields = ("v_on", "r_on", "r_off", "v_off", "inductance", "r_coil", "supply")
@@ -155,8 +154,7 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
     lag = max(-drive.freewheel.bypass_lead, 0.0) if p_rel is not p else 0.0
     want = np.ravel(np.broadcast_to(peak_time, shape))
     pin = rel = None
-    if reuse is not None and all(np.array_equal(getattr(p, f), getattr(reuse.params, f))
-                                 for f in p.__dataclass_fields__):
+    if reuse is not None and p.same_points(reuse.params):
         # Same points and coil temperatures: the runs do not depend on the peak length.
         i_peak = peak_current_closed_form(p, reuse.pull_in, want)
         if i_peak is not None and np.array_equal(np.ravel(ss.i_max), reuse.release_from):
@@ -166,7 +164,7 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
         pin = pull_in(p, peak_time=want)
         rel = (late_release(p, p_rel, np.ravel(ss.i_max), lag) if lag > 0 else
                release(p_rel, np.ravel(ss.i_max)))
-    through, gap = stroke_current(p.l_closed, p.beta, p.stroke, p.preload, p.rate, p.load)
+    through, gap = p.stroke_current()
     held, lift = hold_force_current(p, np.ravel(ss.i_min), np.ravel(ss.rms), np.ravel(ss.period))
     return ArmatureFigures(params=p, pull_in=pin, release=rel, start_current=p.start_current,
                            stay_current=p.stay_current, stroke_current=np.atleast_1d(through),

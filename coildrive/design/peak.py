@@ -29,6 +29,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..config import Drive
+from ..model.circuit import open_inductance
 from .corners import CornerGrid
 from .evaluate import PointResults
 from .figures import worst
@@ -71,9 +72,7 @@ def force_times(drive: Drive, res: PointResults) -> tuple[np.ndarray, float]:
     :mod:`coildrive.design.supply`'s."""
     lp = res.loop
     i_force = drive.pull_in.current_margin * drive.pull_in.current
-    ind = lp.inductance
-    if drive.armature is not None:
-        ind = drive.armature.inductance_open * res.l_factor
+    ind = lp.inductance if drive.armature is None else open_inductance(drive, res.l_factor)
     return rise_time(drive, lp, i_force, ind), i_force
 
 
@@ -150,5 +149,5 @@ def shortest_peak_current(drive: Drive, res: PointResults, short_time: np.ndarra
     """Current (A) at the end of the shortest real peak at each point (plain RL rise; with
     an armature the open inductance, before it moves)."""
     lp = res.loop
-    ind = lp.inductance if drive.armature is None else drive.armature.inductance_open * res.l_factor
+    ind = lp.inductance if drive.armature is None else open_inductance(drive, res.l_factor)
     return rise_current(drive, lp, short_time, ind)

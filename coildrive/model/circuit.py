@@ -171,8 +171,12 @@ def loop(drive: Drive, supply, coil_temp, r_factor=1.0, l_factor=1.0, path: str 
             v_off = v_diode + v_fast + 0.0 * supply
     # With a moving armature the switched segments that use Loop.inductance (the PWM hold,
     # the release until the armature lets go) all have it seated: the closed inductance.
+    # With the coil's two curves ([armature] + coil.seated_current) that is the seated curve.
     base = coil.inductance if drive.armature is None else drive.armature.inductance_closed
-    curve = coil.flux_current and flux.curve(coil.flux_current, coil.flux_linkage)
+    if coil.seated_current and drive.armature is not None:
+        curve = flux.curve(coil.seated_current, coil.seated_linkage)
+    else:
+        curve = coil.flux_current and flux.curve(coil.flux_current, coil.flux_linkage)
     inductance = (1.0 if curve else base) * np.asarray(l_factor, float)
     arrays = np.broadcast_arrays(supply, r_on, r_off, v_off, inductance, r_coil, v_diode, v_fast)
     # read-only broadcast views: no copies of scalars spread over many points
@@ -186,6 +190,19 @@ def loop(drive: Drive, supply, coil_temp, r_factor=1.0, l_factor=1.0, path: str 
     return Loop(v_on=supply, r_on=r_on, r_off=r_off, v_off=v_off, inductance=inductance,
                 r_coil=r_coil, supply=supply, bypassed=bypassed, v_diode=v_diode, v_fast=v_fast,
                 bridge=kind, mixed=mixed)
+
+
+def open_inductance(drive: Drive, l_factor):
+    """The coil before the armature moves, per point: ``armature.inductance_open`` H times
+    the tolerance factor, or with the coil's two curves the open one's
+    :class:`~coildrive.model.flux.FluxCoil` (without ``[armature]``: ``None``)."""
+    arm = drive.armature
+    if arm is None:
+        return None
+    factor = np.asarray(l_factor, float)
+    if drive.coil.seated_current:
+        return flux.FluxCoil(flux.curve(drive.coil.flux_current, drive.coil.flux_linkage), factor)
+    return arm.inductance_open * factor
 
 
 def freewheel_element_energy(drive: Drive, lp: Loop, charge, square):

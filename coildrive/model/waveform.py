@@ -110,13 +110,13 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
         return armature_actuation(drive, supply, coil_temp, peak_time, duty, frequency,
                                   hold_time, r_factor, l_factor, points, label)
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
+    if split_decay(drive):
+        return _split_actuation(drive, lp, supply, coil_temp, peak_time, duty, frequency,
+                                hold_time, r_factor, l_factor, points, label)
     if isinstance(lp.inductance, FluxCoil):   # a saturating coil: its own sampling
         return _flux_actuation(drive, lp, supply, peak_time, duty, frequency, hold_time,
                                points, label)
     v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
-    if split_decay(drive):
-        return _split_actuation(drive, lp, supply, coil_temp, peak_time, duty, frequency,
-                                hold_time, r_factor, l_factor, points, label)
     big = 40 * points
     ts, cs, ons = [], [], []
 
@@ -162,6 +162,14 @@ def _mixed_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_tim
     mask[n_peak:n_peak + len(t_hold)] = fast_hold
     v_fast = fast.switch_voltage(drive, w.current)
     return dataclasses.replace(w, switch_voltage=np.where(mask, v_fast, w.switch_voltage))
+
+
+def one_point(inductance):
+    """The coil of one operating point: H as a float, or a saturating coil's
+    :class:`~coildrive.model.flux.FluxCoil` with a scalar scale."""
+    if isinstance(inductance, FluxCoil):
+        return inductance.with_scale(float(np.ravel(inductance.scale)[0]))
+    return float(inductance)
 
 
 def _flux_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: float,
@@ -252,7 +260,8 @@ def _split_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_tim
     """:func:`actuation` with split decay: hold through the slow loop ``lp``, release
     through the fast one, the bypass opening as ``freewheel.bypass_lead`` says."""
     fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
-    v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
+    v, r_on, r_off, v_off = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off))
+    ind = one_point(lp.inductance)
     big = 40 * points
     ts, cs, ons = [], [], []
     i0 = peak_samples(peak_time, v, r_on, ind, big, ts, cs, ons, drive)
@@ -281,7 +290,8 @@ def split_release(drive: Drive, lp, fast, t_cut: float, i_cut: float, t_last: fl
     ``-bypass_lead`` s after it, the current decaying slowly until then. Returns
     ``(bypass opening time s, time the current reaches zero s)``.
     """
-    v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
+    v, r_on, r_off, v_off = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off))
+    ind = one_point(lp.inductance)
     f_off, f_v = float(fast.r_off), float(fast.v_off)
     lead = drive.freewheel.bypass_lead
     if lead >= 0:
@@ -400,7 +410,7 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
             schedule.append((start + period, False, points))
     i_max = float(p.v_on[0] / p.r_on[0])
     t_un = float(decay_time(min(float(p.stay_current[0]), i_max), i_max, p.r_off[0], p.v_off[0],
-                            p.l_closed[0]))
+                            p.coil_closed[0] if p.curves is not None else p.l_closed[0]))
     bound = float(time_bound(t_un, p.l_closed[0], p.r_off[0], p.mass[0], p.stroke[0],
                               p.damping[0], p.preload[0] + p.load[0]))
 
@@ -417,23 +427,24 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     tr = None
     if peak_time > 0:
         # Fast path: seated at the end of the peak and the hold current never below the
-        # stay current -- then the hold is the closed-form PWM of the seated coil.
+        # stay current -- then the hold is the closed-form PWM of the seated coil (with
+        # the coil's two curves, the seated curve's tabulated exact segments).
         head = simulate(p, schedule[:1], method=method, points=points)
         i0 = float(head.current[-1])
         if head.state == "seated":
             v, r_on, r_off, v_off = (float(a[0]) for a in (p.v_on, p.r_on, p.r_off, p.v_off))
+            seated = float(p.l_closed[0]) if p.curves is None else p.coil_closed[0]
             th, ih, oh, t_cut, i_cut, starts = hold_samples(
-                peak_time, i0, v, r_on, r_off, v_off, float(p.l_closed[0]), duty, frequency,
-                hold_time, points)
+                peak_time, i0, v, r_on, r_off, v_off, seated, duty, frequency, hold_time, points)
             if split and t_cut - t_on < t_open < t_cut and not np.any(th == t_open):
                 # a sample where the bypass opens, inside the last on-time
                 at = int(np.searchsorted(th, t_open))
-                i_open = rise_current(t_open - (t_cut - t_on), float(starts[-1]), v, r_on,
-                                      float(p.l_closed[0]))
+                i_open = float(rise_current(t_open - (t_cut - t_on), float(starts[-1]), v, r_on,
+                                            seated))
                 th, ih, oh = np.insert(th, at, t_open), np.insert(ih, at, i_open), np.insert(oh, at, 1.0)
             if float(np.min(starts)) >= float(p.stay_current[0]):
                 tail = simulate(p, release_segments(t_cut), state="seated",
-                                flux=float(p.l_closed[0]) * i_cut, method=method, points=points,
+                                flux=float(p.flux_closed(i_cut)[0]), method=method, points=points,
                                 stop=lambda r: r.state == "open" and not r.live, t0=t_cut,
                                 release_params=p_rel)
                 zeros = np.zeros_like(th)
@@ -492,28 +503,50 @@ def hold_samples(t_start: float, i0: float, v: float, r_on: float, r_off: float,
     period = 1.0 / frequency
     n = max(1, int(round(hold_time * frequency)))
     t_on, t_off = duty * period, (1.0 - duty) * period
-    e_on, e_off = math.exp(-t_on * r_on / ind), math.exp(-t_off * r_off / ind)
-    a, b = v / r_on, v_off / r_off
+    if isinstance(ind, FluxCoil):
+        # a saturating coil (the seated curve of an armature's two): its segments read
+        # from one point's tabulated exact times (model.flux_waveform.Track)
+        from .flux_waveform import Track
+
+        tr = Track(ind, v, r_on, r_off, v_off, i0)
+        rise, decay, to_zero = tr.rise, (lambda t, i: tr.decay(i, t)), tr.to_zero
+    else:
+        def rise(i, t):
+            return rise_current(t, i, v, r_on, ind)
+
+        def decay(t, i):
+            return decay_current(t, i, r_off, v_off, ind)
+
+        def to_zero(i):
+            return decay_time(0.0, i, r_off, v_off, ind)
     starts = np.empty(n)
     i = i0
-    for k in range(n):
-        starts[k] = i
-        top = a + (i - a) * e_on
-        i = max((top + b) * e_off - b, 0.0) if k < n - 1 else top
+    if isinstance(ind, FluxCoil):
+        for k in range(n):
+            starts[k] = i
+            top = float(rise(i, t_on))
+            i = float(decay(t_off, top)) if k < n - 1 else top
+    else:
+        e_on, e_off = math.exp(-t_on * r_on / ind), math.exp(-t_off * r_off / ind)
+        a, b = v / r_on, v_off / r_off
+        for k in range(n):
+            starts[k] = i
+            top = a + (i - a) * e_on
+            i = max((top + b) * e_off - b, 0.0) if k < n - 1 else top
     frac = np.linspace(0.0, 1.0, points + 1)
     t0 = peak_time + np.arange(n)[:, None] * period
     on_t = np.broadcast_to(frac[None, :] * t_on, (n, points + 1))
-    on_i = rise_current(on_t, starts[:, None], v, r_on, ind)
+    on_i = rise(starts[:, None], on_t)
     tops = on_i[:, -1]
     # The off segment's end is the next period's first sample.
     off_t = np.broadcast_to(frac[None, 1:-1] * t_off, (n, points - 1))
-    off_i = decay_current(off_t, tops[:, None], r_off, v_off, ind)
+    off_i = decay(off_t, tops[:, None])
     # Where the diode blocks (DCM), put a sample exactly at the zero crossing; in CCM the
     # extra sample goes mid-way through the last interval so every row has the same count.
-    t_zero = decay_time(0.0, tops, r_off, v_off, ind)
+    t_zero = to_zero(tops)
     extra = np.where(t_zero < t_off, t_zero, t_off * (points - 0.5) / points)
     off_t = np.concatenate([off_t, extra[:, None]], axis=1)
-    off_i = np.concatenate([off_i, decay_current(extra, tops, r_off, v_off, ind)[:, None]], axis=1)
+    off_i = np.concatenate([off_i, decay(extra, tops)[:, None]], axis=1)
     order = np.argsort(off_t, axis=1, kind="stable")
     off_t = np.take_along_axis(off_t, order, axis=1)
     off_i = np.take_along_axis(off_i, order, axis=1)
