@@ -30,6 +30,7 @@ from ..model.circuit import split_decay
 from ..model.losses import HoldLosses, hold_losses
 from ..model.pwm import pwm_steady_state
 from .diagnostics import rise_check, seat_check
+from .boost import boost_cautions, boost_checks, boost_result, boosted_points
 from .checks import base_checks, cautions, energy_checks, loss_cautions, loss_checks
 from .corners import nominal_point
 from .envelope import supply_codes
@@ -105,6 +106,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                        short, reuse=first, **at)
     res = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor, d_high, f_hold,
                    long_, reuse=first if np.array_equal(d_low, d_high) else None, **at)
+    res = boosted_points(drive, res)   # a boosted peak's highest end current and turn-off
     loss = _losses(drive, res, f_hold)
     corners = corners_of(env, res_low, loss, high=res, duty=d_high, drive=drive)
     nom_grid = nominal_point(drive)
@@ -165,6 +167,9 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                         lambda v: adc_code(v / sense.divider, board.adc.reference, board.adc.bits),
                         thresholds.supply_min_code)
     checks += supply_checks(sup)
+    boost = boost_result(drive, env, res_low, board.tick.rate) if drive.supply.boosted else None
+    checks += boost_checks(drive, boost)
+    notes += boost_cautions(boost)
     if thermal is not None and thermal.cycle is not None:
         notes[2] = cycle_caution(thermal)   # the envelope's hot coil is the cycle's
     notes += thermal_cautions(thermal)
@@ -174,7 +179,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                  checks=checks, cautions=notes, monte_carlo=None,
                  input_hash=drive.input_hash(), worst_corner_index=pk.k_pull, armature=arm,
                  split_decay=split, actuation_points=points, peak_table=pk.table,
-                 thermal_cycle=thermal, topology=topo, supply=sup,
+                 thermal_cycle=thermal, topology=topo, supply=sup, boost=boost,
                  rise_check=rise_check(drive, env, res, f_hold),
                  seat_check=seat_check(drive, env, res_low))
     if samples > 0:

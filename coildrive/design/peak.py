@@ -103,6 +103,12 @@ def plan_peak(drive: Drive, grid: CornerGrid, first: PointResults, entry_results
     tf_all, i_force = force_times(drive, first)
     k_force = worst(tf_all)
     ticks, by_time, by_force = requirement(drive, t_pull, tf_all)
+    if drive.supply.boosted:
+        # the peak ends at its threshold (the force current) at every point; the ticks are
+        # the time-out: the worst corner's time to the threshold x margin (design/boost.py)
+        tf = float(np.max(np.where(np.isnan(tf_all), np.inf, tf_all)))
+        ticks = by_time = _ticks(tf * drive.pull_in.margin, rate)
+        by_force = None
     not_reached = None
     lp = first.loop
     if ticks is None:
@@ -114,6 +120,8 @@ def plan_peak(drive: Drive, grid: CornerGrid, first: PointResults, entry_results
             not_reached = (f"not reached: the armature does not seat at {grid.label(k_pull)} "
                            "(see the armature_seats check)")
     governed = "" if ticks is None else ("force margin" if (by_force or 0) > (by_time or 0) else "time margin")
+    if drive.supply.boosted and ticks is not None:
+        governed = "current threshold"
     table = None
     n = len(grid)
     if ticks is not None and entry_results is not None:
@@ -128,6 +136,8 @@ def plan_peak(drive: Drive, grid: CornerGrid, first: PointResults, entry_results
             ticks = max(entries)
     if ticks is None:
         short = long_ = np.zeros(n)
+    elif drive.supply.boosted:   # each point's peak ends at the threshold
+        short = long_ = np.asarray(tf_all, float)
     elif table is not None:
         ent = np.asarray(table.peak_ticks)
         codes = np.asarray(table.adc_codes)

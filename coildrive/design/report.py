@@ -108,6 +108,12 @@ def _pull_in_rows(d: Design) -> list:
     p = d.pull_in
     if p.peak_ticks is None:
         return [("pull-in", "not reached", p.not_reached or "")]
+    if d.boost is not None:
+        return [
+            ("pull-in time (worst)", _ms(p.time_s), f"to {p.current_a:.4g} A at {p.worst_corner}, from the boost"),
+            *_boost_rows(d),
+            ("current at end of peak", f"<= {p.peak_end_current_max_a:.4g} A", f"at {p.peak_end_corner}"),
+        ]
     force = (f"{p.current_margin:g} x pull-in = {p.force_current_a:.4g} A by the shortest peak "
              f"({p.peak_ticks - 1} ticks): {p.shortest_peak_current_a:.4g} A at {p.force_corner}"
              if p.force_time_s is not None else
@@ -122,6 +128,37 @@ def _pull_in_rows(d: Design) -> list:
          + (f"; + settle {_ms(p.settle_time_s)}" if p.settle_time_s > 0 else "")),
         ("current at end of peak", f"<= {p.peak_end_current_max_a:.4g} A", f"at {p.peak_end_corner}"),
     ]
+
+
+def _boost_rows(d: Design) -> list:
+    """The boosted peak: threshold, time-out, droop, energy and recharge, switch voltage."""
+    b = d.boost
+    cap = (f"{b.capacitance_f * 1e6:.4g} uF (min {b.capacitance_min_f * 1e6:.4g} uF)" if b.capacitance_f > 0
+           else "an ideal source")
+    rows = [
+        ("boost", f"{b.boost_v:.4g} V", f"{b.boost_min_v:.4g}..{b.boost_max_v:.4g} V, {cap}, "
+         f"path {b.boost_resistance_ohm:.4g} ohm"),
+        ("peak threshold", f"{b.threshold_a:.4g} A", f"{d.pull_in.current_margin:g} x pull-in; ADC code "
+         f"{b.threshold_code} (trips by {b.trip_max_a:.4g} A with the chain reading low)"),
+    ]
+    if b.time_to_threshold_s is None:
+        return rows + [("  time to threshold", "not reached",
+                        f"the boost at its lowest drives at most {b.reachable_current_a:.4g} A")]
+    rows += [
+        ("  time to threshold", _ms(b.time_to_threshold_s),
+         f"worst at {b.time_to_threshold_corner}; fastest {_ms(b.fastest_time_s)}"),
+        ("  peak time-out", _ms(b.timeout_s), f"{b.timeout_ticks} ticks = worst time x {d.pull_in.margin:g}, +1 tick"),
+        ("  boost at the threshold", f">= {b.lowest_boost_v:.4g} V",
+         f"droops {b.droop_v:.4g} V at {b.lowest_boost_corner} (main supply {b.main_supply_there_v:.4g} V)"),
+        ("  boost energy / actuation", f"{b.energy_j * 1e3:.4g} mJ", f"at {b.energy_corner}"),
+    ]
+    if b.recharge_time_s is not None:
+        rows.append(("  boost recharge", _ms(b.recharge_time_s),
+                     f"at {b.power_w:.4g} W; shortest actuation interval {_ms(b.min_interval_s)}"))
+    rows.append(("  switch at peak turn-off", f"{b.switch_voltage_v:.4g} V",
+                 f"boost at full charge + freewheel at {b.end_current_max_a:.4g} A "
+                 f"({b.end_switch_voltage_v:.4g} V from the capacitor's voltage at the end)"))
+    return rows
 
 
 def _supply_rows(d: Design) -> list:

@@ -424,6 +424,55 @@ class SupplyResult:
 
 
 @dataclass(frozen=True)
+class BoostResult:
+    """The boosted peak (``[supply] boost``): the boost at its nominal, lowest and highest
+    (V), its capacitor (F; 0 = an ideal source) and path resistance (ohm), charging power
+    (W; 0 = not given); the threshold (A), its ADC code and the highest true current that
+    code trips at (A); the worst corner's time to the threshold (s, ``None`` when a corner
+    never gets there: ``reachable_current_a`` is the most the boost at its lowest drives)
+    and the fastest; the time-out (ticks, s); the highest current at the end of the peak
+    (A; one conversion late); the boost capacitor at the threshold at its lowest (V), the
+    main supply there and the droop from the lowest charge (V); the energy drawn per
+    actuation (J), the capacitor's stored energy at full charge (J), the recharge time at
+    ``power_w`` and the shortest actuation interval it allows (s, switch-on to switch-on;
+    ``None`` without a power); the switch's voltage turning off the end current from the
+    boost at full charge (V, checked) and at the capacitor's voltage at the end."""
+
+    boost_v: float
+    boost_min_v: float
+    boost_max_v: float
+    capacitance_f: float
+    capacitance_min_f: float
+    boost_resistance_ohm: float
+    power_w: float
+    threshold_a: float
+    threshold_code: int
+    trip_max_a: float
+    code_fits: bool
+    time_to_threshold_s: float | None
+    time_to_threshold_corner: str
+    fastest_time_s: float
+    fastest_corner: str
+    timeout_ticks: int | None
+    timeout_s: float | None
+    reachable_current_a: float
+    end_current_max_a: float
+    end_current_corner: str
+    lowest_boost_v: float | None
+    lowest_boost_corner: str
+    main_supply_there_v: float
+    droop_v: float | None
+    energy_j: float
+    energy_corner: str
+    stored_energy_j: float
+    recharge_time_s: float | None
+    min_interval_s: float | None
+    switch_voltage_v: float
+    switch_voltage_corner: str
+    end_switch_voltage_v: float
+
+
+@dataclass(frozen=True)
 class TopologyResult:
     """Where the switch sits, for a topology other than the low-side switch (``design
     --json`` key ``topology``; absent for a low-side switch, whose switch node is the
@@ -617,6 +666,7 @@ class Design:
     seat_check: SeatCheck | None = None
     datasheet: object | None = None   # design.datasheet.DatasheetResult, with datasheet inputs
     supply: SupplyResult | None = None
+    boost: BoostResult | None = None
 
     @property
     def ok(self) -> bool:
@@ -655,6 +705,8 @@ class Design:
             out["topology"] = topo
         if self.supply is not None:
             out["supply"] = asdict(self.supply)
+        if self.boost is not None:
+            out["boost"] = asdict(self.boost)
         if self.armature is not None:
             out["armature"] = asdict(self.armature)
         if self.split_decay is not None:
