@@ -250,6 +250,9 @@ def predict(design, point: OperatingPoint, hold_time: float) -> tuple[dict, obje
 
     drive = design.drive
     cold = dataclasses.replace(drive, thermal=dataclasses.replace(drive.thermal, resistance=0.0))
+    if drive.supply.boosted:   # nominal parts: the boost at its nominal too
+        cold = dataclasses.replace(cold, supply=dataclasses.replace(
+            drive.supply, boost_tolerance=0.0, boost_capacitance_tolerance=0.0))
     from ..design import firmware_setting
 
     duty, peak = firmware_setting(design, point.supply_v, point.coil_temp_c)

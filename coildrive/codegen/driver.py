@@ -96,6 +96,10 @@ class DriverView:
             raise InputError(d.drive.source or d.drive.name, "switch.topology",
                              "'full_bridge': the reference driver runs one switch (low- or high-side); "
                              "a bridge's four gates and decay modes are not in it yet")
+        if d.drive.supply.boosted:
+            raise InputError(d.drive.source or d.drive.name, "supply.boost",
+                             "the reference driver runs the peak for its ticks; a boosted peak's boost "
+                             "switch and current threshold are not in it yet (the header has their constants)")
         if self.regulation not in ("fixed", "supply_table", "current", "closed_loop"):
             raise InputError(d.drive.source or d.drive.name, "hold.regulation",
                              f"{self.regulation!r}: this driver runs the fixed, supply-table, "

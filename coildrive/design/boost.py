@@ -23,6 +23,7 @@ import numpy as np
 
 from ..config import Drive
 from ..model import boost as model
+from ..model.circuit import loop
 from .corners import CornerGrid
 from .envelope import reading_factors
 from .result import BoostResult, Check
@@ -60,6 +61,25 @@ def threshold(drive: Drive) -> tuple[float, int, float]:
     i_th = drive.pull_in.current_margin * drive.pull_in.current
     code = math.ceil(i_th * vpa * high / lsb - 1e-9)
     return i_th, code, code * lsb / (vpa * low)
+
+
+def nominal_trip(drive: Drive) -> float:
+    """The true current (A) at which the threshold code trips with a nominal sense chain."""
+    b = drive.board
+    return threshold(drive)[1] * (b.adc.reference / 2**b.adc.bits) / (b.sense.resistance * b.sense.gain)
+
+
+def firmware_peak(design, supply: float, coil_temp: float, r_factor: float = 1.0,
+                  l_factor: float = 1.0) -> float:
+    """The boosted peak the firmware runs at one point (s): until a nominal sense chain
+    reads the threshold code, from the boost at its nominal voltage and capacitance, or the
+    time-out if sooner."""
+    drive = design.drive
+    s = drive.supply
+    lp = loop(drive, supply, coil_temp, r_factor, l_factor)
+    b = model.boost(s.boost, s.boost_capacitance, lp.r_on + s.boost_resistance, lp.inductance)
+    t = float(model.threshold_time(nominal_trip(drive), b))
+    return min(t, design.pull_in.peak_time_s or 0.0)
 
 
 def end_current(drive: Drive, lp) -> np.ndarray:

@@ -121,7 +121,7 @@ def plan_peak(drive: Drive, grid: CornerGrid, first: PointResults, entry_results
                            "(see the armature_seats check)")
     governed = "" if ticks is None else ("force margin" if (by_force or 0) > (by_time or 0) else "time margin")
     if drive.supply.boosted and ticks is not None:
-        governed = "current threshold"
+        governed = "time-out; ends at the current threshold"
     table = None
     n = len(grid)
     if ticks is not None and entry_results is not None:

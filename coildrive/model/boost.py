@@ -118,3 +118,18 @@ def energy_drawn(t, b: Boost) -> np.ndarray:
 def recharge_time(energy, power) -> np.ndarray:
     """Time (s) to put ``energy`` J back at a constant charging ``power`` W: ``E / P``."""
     return np.asarray(energy, float) / np.asarray(power, float)
+
+
+def voltage_trace(t, peak_end: float, b: Boost, power: float) -> np.ndarray:
+    """The boost voltage (V) over an actuation at times ``t`` s (one point ``b``): the
+    capacitor's discharge until the peak ends at ``peak_end`` s, then its recharge at a
+    constant ``power`` W, ``v = sqrt(v_end^2 + 2 P (t - t_end) / C)`` up to ``V_b`` (held at
+    ``v_end`` without a power); an ideal source stays at ``V_b``."""
+    t = np.asarray(t, float)
+    if bool(np.all(b.ideal)):
+        return np.full(t.shape, float(b.v_b))
+    v_during = state(np.minimum(t, peak_end), b)[1]
+    v_end = float(state(peak_end, b)[1])
+    c = float(b.c)
+    after = np.sqrt(v_end**2 + 2.0 * power * np.maximum(t - peak_end, 0.0) / c)
+    return np.where(t <= peak_end, v_during, np.minimum(after, float(b.v_b)))

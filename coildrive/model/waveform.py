@@ -14,6 +14,7 @@ release decays slowly until the bypass opens.
 
 from __future__ import annotations
 
+import dataclasses
 import io
 import math
 from dataclasses import dataclass, field
@@ -22,6 +23,7 @@ import numpy as np
 
 from ..config import Drive
 from .circuit import full_bridge, loop, split_decay
+from . import boost as boost_model
 from . import supply as bus_model
 from .flux import FluxCoil
 from .rl import decay_current, decay_time, rise_current
@@ -43,6 +45,8 @@ class Waveform:
     ``bypass_open``. ``node_voltage`` (the switch node to ground, V) and ``coil_voltage``
     (across the coil's terminals, V) are there for topologies whose switch node is not
     the switch voltage (``Topology.shows_node``; ``None`` for a low-side switch).
+    ``boost_voltage`` (V; a boosted peak only, else ``None``) is the boost capacitor:
+    its discharge in the peak, then its recharge (:func:`coildrive.model.boost.voltage_trace`).
     """
 
     time: np.ndarray
@@ -57,11 +61,13 @@ class Waveform:
     bypass_on: np.ndarray | None = None
     node_voltage: np.ndarray | None = None
     coil_voltage: np.ndarray | None = None
+    boost_voltage: np.ndarray | None = None
 
     def to_csv(self) -> str:
         """CSV text with header ``time_s,current_a,switch_on,switch_voltage_v,sense_current_a``
         (then ``bypass_on`` with split decay, ``position_m,velocity_m_s`` with an armature,
-        ``node_voltage_v,coil_voltage_v`` with a high-side switch)."""
+        ``node_voltage_v,coil_voltage_v`` with a high-side switch, ``boost_v`` with a boosted
+        peak)."""
         buf = io.StringIO()
         cols = [self.time, self.current, self.switch_on, self.switch_voltage, self.sense_current]
         head = "time_s,current_a,switch_on,switch_voltage_v,sense_current_a"
@@ -78,6 +84,10 @@ class Waveform:
             cols += [self.node_voltage, self.coil_voltage]
             head += ",node_voltage_v,coil_voltage_v"
             fmt += ["%.6e", "%.6e"]
+        if self.boost_voltage is not None:
+            cols.append(self.boost_voltage)
+            head += ",boost_v"
+            fmt.append("%.6e")
         buf.write(head + "\n")
         np.savetxt(buf, np.column_stack(cols), delimiter=",", fmt=fmt)
         return buf.getvalue()
@@ -121,8 +131,19 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
 
     # Release: decay to zero (a full bridge's through its fast path).
     fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") if full_bridge(drive) else lp
-    return release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_offedge, i_off, big, label,
-                            release_lp=fast)
+    w = release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_offedge, i_off, big, label,
+                         release_lp=fast)
+    if drive.supply.boosted:
+        w = dataclasses.replace(w, boost_voltage=boost_model.voltage_trace(
+            w.time, peak_time, nominal_boost(drive, r_on, ind), drive.supply.boost_power))
+    return w
+
+
+def nominal_boost(drive: Drive, r_on: float, ind: float) -> boost_model.Boost:
+    """The boost at its nominal voltage and capacitance feeding the on-loop ``r_on`` ohm
+    (with the boost path's own resistance), ``ind`` H."""
+    s = drive.supply
+    return boost_model.boost(s.boost, s.boost_capacitance, r_on + s.boost_resistance, ind)
 
 
 def _flux_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: float,
@@ -146,10 +167,13 @@ def peak_samples(peak_time: float, v: float, r_on: float, ind: float, big: int,
     samples, through the on-loop ``v`` V, ``r_on`` ohm, ``ind`` H -- to the sample pieces
     ``ts``/``cs``/``ons`` (s, A, 0/1); returns the current at its end, A. With a
     ``drive`` whose supply has a source resistance the rise is on the drooping bus
-    (:mod:`coildrive.model.supply`; the hold that follows sees the stiff supply)."""
+    (:mod:`coildrive.model.supply`; the hold that follows sees the stiff supply); with a
+    boosted peak it runs from the boost at its nominal (:mod:`coildrive.model.boost`)."""
     tp = np.linspace(0.0, peak_time, big + 1)
     ts.append(tp)
-    if drive is not None and drive.supply.droops:
+    if drive is not None and drive.supply.boosted:
+        cs.append(boost_model.state(tp, nominal_boost(drive, r_on, ind))[0])
+    elif drive is not None and drive.supply.droops:
         cs.append(bus_model.current(tp, bus_model.bus(v, drive.supply.source_resistance,
                                                       drive.supply.capacitance, r_on, ind)))
     else:
