@@ -145,7 +145,7 @@ def _peak_comment(d: Design) -> str:
     if p.peak_ticks is None:
         return "no peak: " + (p.not_reached or "the pull-in current is not reached")
     if d.boost is not None:
-        return (f"boosted peak time-out: {p.peak_time_s * 1e3:.4g} ms (worst time to the threshold "
+        return (f"boosted peak time-out: {p.peak_time_s * 1e3:.4g} ms (longest peak to the threshold "
                 f"{d.boost.time_to_threshold_s * 1e3:.4g} ms x {p.margin:g}, +1 tick)")
     how = (f"worst pull-in {p.time_s * 1e3:.4g} ms x {p.margin:g}" if p.governed_by == "time margin" else
            f"{p.current_margin:g} x pull-in current by the shortest peak")
@@ -197,7 +197,7 @@ def _boost_constants(d: Design, m: str) -> list[Constant]:
         Constant(f"{m}_BOOST_THRESHOLD_CODE", b.threshold_code,
                  f"end the peak at or above {b.threshold_a:.4g} A (current-sense code)"),
         Constant(f"{m}_BOOST_TIMEOUT_TICKS", b.timeout_ticks,
-                 f"no threshold by then: a fault (worst time {b.time_to_threshold_s * 1e3:.4g} ms x "
+                 f"no threshold by then: a fault (longest peak {b.time_to_threshold_s * 1e3:.4g} ms x "
                  f"{d.pull_in.margin:g}, +1 tick)"),
     ]
     if b.recharge_time_s is not None:

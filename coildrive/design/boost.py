@@ -82,12 +82,24 @@ def firmware_peak(design, supply: float, coil_temp: float, r_factor: float = 1.0
     return min(t, design.pull_in.peak_time_s or 0.0)
 
 
+def _seen(drive: Drive, b: model.Boost) -> np.ndarray:
+    """When the firmware sees the threshold at the latest (s; ``inf`` where never): the
+    highest trip current (the chain reading low), one conversion late."""
+    return model.threshold_time(threshold(drive)[2], b) + 1.0 / drive.board.adc.sample_rate
+
+
+def slowest_peak(drive: Drive, lp) -> np.ndarray:
+    """The longest peak at each point (s; ``inf`` where the threshold is never reached):
+    the boost at its lowest until the firmware sees the threshold. Its worst x
+    ``pull_in.margin`` is the time-out."""
+    return _seen(drive, _boost(drive, lp, lp.inductance, False))
+
+
 def end_current(drive: Drive, lp) -> np.ndarray:
     """The highest current at the end of the peak (A) at each point: the boost at its
     highest, up to the highest trip current, one conversion late."""
-    _, _, i_trip = threshold(drive)
     b = _boost(drive, lp, lp.inductance, True)
-    t = model.threshold_time(i_trip, b) + 1.0 / drive.board.adc.sample_rate
+    t = _seen(drive, b)
     return np.where(np.isfinite(t), model.state(np.where(np.isfinite(t), t, 0.0), b)[0],
                     model.highest_current(b))
 
@@ -122,22 +134,23 @@ def boost_result(drive: Drive, grid: CornerGrid, res, rate: float) -> BoostResul
     i_th, code, i_trip = threshold(drive)
     slow = _boost(drive, lp, lp.inductance, False)
     fast = _boost(drive, lp, lp.inductance, True)
-    t_slow = model.threshold_time(i_th, slow)
+    t_slow = _seen(drive, slow)            # the longest peak at each point
     finite = np.isfinite(t_slow)
     k_slow = int(np.argmax(np.where(finite, t_slow, np.inf)))
     reached = bool(np.all(finite))
     t_fast = model.threshold_time(i_th, fast)
     k_fast = int(np.argmin(t_fast))
-    # slow side: the capacitor at the threshold (its lowest, while the boost alone feeds the coil)
-    v_low = model.state(np.where(finite, t_slow, 0.0), slow)[1]
+    # slow side: the capacitor at the end of the peak (its lowest, while the boost alone
+    # feeds the coil)
+    t_low = np.where(finite, t_slow, 0.0)
+    v_low = model.state(t_low, slow)[1]
     headroom = np.where(finite, v_low - np.asarray(res.supply, float), -np.inf)
     k_low = int(np.argmin(headroom))
     # fast side: the most current, energy and switch voltage
-    t_end = model.threshold_time(i_trip, fast) + 1.0 / drive.board.adc.sample_rate
+    t_end = _seen(drive, fast)
     t_end = np.where(np.isfinite(t_end), t_end, model.peak_time(fast))
     i_end, v_end = model.state(t_end, fast)
-    energy = np.maximum(model.energy_drawn(t_end, fast),
-                        model.energy_drawn(np.where(finite, t_slow, 0.0), slow))
+    energy = np.maximum(model.energy_drawn(t_end, fast), model.energy_drawn(t_low, slow))
     k_e, k_i = int(np.argmax(energy)), int(np.argmax(i_end))
     v_top = s.boost * (1.0 + s.boost_tolerance)
     v_sw = _turn_off_voltage(drive, lp, v_top, i_end)
@@ -147,7 +160,7 @@ def boost_result(drive: Drive, grid: CornerGrid, res, rate: float) -> BoostResul
     recharge = interval = None
     if s.boost_power > 0:
         recharge = float(model.recharge_time(energy[k_e], s.boost_power))
-        interval = float(np.max(t_end)) + recharge
+        interval = float(max(np.max(t_end), np.max(t_low))) + recharge
     cap = s.boost_capacitance
     return BoostResult(
         boost_v=s.boost, boost_min_v=s.boost * (1.0 - s.boost_tolerance), boost_max_v=v_top,
@@ -185,14 +198,14 @@ def boost_checks(drive: Drive, b: BoostResult | None) -> list[Check]:
     else:
         ok = b.code_fits
         out.append(Check("boost_threshold", ok,
-                         f"{b.threshold_a:.4g} A (code {b.threshold_code}) reached after "
+                         f"{b.threshold_a:.4g} A (code {b.threshold_code}) seen after at most "
                          f"{b.time_to_threshold_s * 1e3:.4g} ms at {b.time_to_threshold_corner}; time-out "
                          f"{b.timeout_ticks} ticks" + ("" if ok else
                          " -- the code is above the ADC's full scale: a smaller sense resistance or gain")))
         ok = b.lowest_boost_v > b.main_supply_there_v
         out.append(Check("boost_droop", ok,
                          f"the boost capacitor falls {b.droop_v:.4g} V to {b.lowest_boost_v:.4g} V by the "
-                         f"threshold at {b.lowest_boost_corner}, main supply {b.main_supply_there_v:.4g} V"
+                         f"end of the peak at {b.lowest_boost_corner}, main supply {b.main_supply_there_v:.4g} V"
                          + ("" if ok else " -- the main supply would take over before the threshold: a "
                             "larger boost capacitance (supply.boost_capacitance)")))
     sw = drive.switch

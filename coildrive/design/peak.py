@@ -33,6 +33,7 @@ from .corners import CornerGrid
 from .evaluate import PointResults
 from .figures import worst
 from .result import PeakTable
+from .boost import slowest_peak
 from .supply import rise_current, rise_time, steady_current
 
 
@@ -105,9 +106,10 @@ def plan_peak(drive: Drive, grid: CornerGrid, first: PointResults, entry_results
     ticks, by_time, by_force = requirement(drive, t_pull, tf_all)
     if drive.supply.boosted:
         # the peak ends at its threshold (the force current) at every point; the ticks are
-        # the time-out: the worst corner's time to the threshold x margin (design/boost.py)
-        tf = float(np.max(np.where(np.isnan(tf_all), np.inf, tf_all)))
-        ticks = by_time = _ticks(tf * drive.pull_in.margin, rate)
+        # the time-out: the worst corner's longest peak x margin (design/boost.py)
+        t_end = slowest_peak(drive, first.loop)
+        ticks = by_time = _ticks(float(np.max(np.where(np.isnan(t_end), np.inf, t_end))) * drive.pull_in.margin,
+                                 rate)
         by_force = None
     not_reached = None
     lp = first.loop
@@ -136,8 +138,8 @@ def plan_peak(drive: Drive, grid: CornerGrid, first: PointResults, entry_results
             ticks = max(entries)
     if ticks is None:
         short = long_ = np.zeros(n)
-    elif drive.supply.boosted:   # each point's peak ends at the threshold
-        short = long_ = np.asarray(tf_all, float)
+    elif drive.supply.boosted:   # each point's peak ends at the threshold, at the latest when seen
+        short, long_ = np.asarray(tf_all, float), np.asarray(t_end, float)
     elif table is not None:
         ent = np.asarray(table.peak_ticks)
         codes = np.asarray(table.adc_codes)

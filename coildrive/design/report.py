@@ -142,13 +142,14 @@ def _boost_rows(d: Design) -> list:
          f"{b.threshold_code} (trips by {b.trip_max_a:.4g} A with the chain reading low)"),
     ]
     if b.time_to_threshold_s is None:
-        return rows + [("  time to threshold", "not reached",
+        return rows + [("  longest peak", "not reached",
                         f"the boost at its lowest drives at most {b.reachable_current_a:.4g} A")]
     rows += [
-        ("  time to threshold", _ms(b.time_to_threshold_s),
-         f"worst at {b.time_to_threshold_corner}; fastest {_ms(b.fastest_time_s)}"),
-        ("  peak time-out", _ms(b.timeout_s), f"{b.timeout_ticks} ticks = worst time x {d.pull_in.margin:g}, +1 tick"),
-        ("  boost at the threshold", f">= {b.lowest_boost_v:.4g} V",
+        ("  longest peak", _ms(b.time_to_threshold_s),
+         f"until the threshold is seen (trip by {b.trip_max_a:.4g} A, one conversion late) at "
+         f"{b.time_to_threshold_corner}; fastest to {b.threshold_a:.4g} A {_ms(b.fastest_time_s)}"),
+        ("  peak time-out", _ms(b.timeout_s), f"{b.timeout_ticks} ticks = longest peak x {d.pull_in.margin:g}, +1 tick"),
+        ("  boost at end of peak", f">= {b.lowest_boost_v:.4g} V",
          f"droops {b.droop_v:.4g} V at {b.lowest_boost_corner} (main supply {b.main_supply_there_v:.4g} V)"),
         ("  boost energy / actuation", f"{b.energy_j * 1e3:.4g} mJ", f"at {b.energy_corner}"),
     ]

@@ -428,11 +428,13 @@ class BoostResult:
     """The boosted peak (``[supply] boost``): the boost at its nominal, lowest and highest
     (V), its capacitor (F; 0 = an ideal source) and path resistance (ohm), charging power
     (W; 0 = not given); the threshold (A), its ADC code and the highest true current that
-    code trips at (A); the worst corner's time to the threshold (s, ``None`` when a corner
-    never gets there: ``reachable_current_a`` is the most the boost at its lowest drives)
-    and the fastest; the time-out (ticks, s); the highest current at the end of the peak
-    (A; one conversion late); the boost capacitor at the threshold at its lowest (V), the
-    main supply there and the droop from the lowest charge (V); the energy drawn per
+    code trips at (A); the worst corner's time until the firmware sees the threshold (s:
+    the highest trip current, one conversion late, the boost at its lowest; ``None`` when a
+    corner never gets there: ``reachable_current_a`` is the most the boost at its lowest
+    drives) and the fastest time to the threshold; the time-out (ticks, s); the highest
+    current at the end of the peak (A; one conversion late); the boost capacitor at the end
+    of the peak at its lowest (V), the main supply there and the droop from the lowest
+    charge (V); the energy drawn per
     actuation (J), the capacitor's stored energy at full charge (J), the recharge time at
     ``power_w`` and the shortest actuation interval it allows (s, switch-on to switch-on;
     ``None`` without a power); the switch's voltage turning off the end current from the
