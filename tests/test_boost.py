@@ -38,7 +38,7 @@ from ngspice_run import OPTIONS, knee, run
 from coildrive.model import boost as boost_model
 
 EXAMPLE = EXAMPLES / "fuel-valve-boost-12v.toml"
-#: Invented element values (the fuel valve's slow corner): boost 45.6 V on 176 uF through
+#: Invented element values (a low-resistance fast valve's slow corner): boost 45.6 V on 176 uF through
 #: 0.1 ohm; sense 50 mohm in the coil path, hot coil 2.6 ohm and 2.75 mH, a 20 mohm switch;
 #: main supply 9 V behind a 0.9 V diode; freewheel diode 0.9 V; threshold 4.4 A.
 V_B, C_B, R_B = 45.6, 176e-6, 0.1
@@ -162,21 +162,22 @@ def test_design_json_header_and_simulate(tmp_path, boosted):
     assert out.returncode == 0, out.stderr
     d = json.loads(out.stdout)
     b = d["boost"]
-    # hand-worked: ceil(4.4 A x 0.05 ohm x 10 / (3.3 V / 4096)) = ceil(2730.67) = 2731
-    assert b["threshold_code"] == 2731 and b["threshold_a"] == pytest.approx(4.4)
+    # hand-worked: 1.3 x 0.9 A = 1.17 A; ceil(1.17 A x 0.1 ohm x 20 / (3.3 V / 4096))
+    # = ceil(2904.44) = 2905
+    assert b["threshold_code"] == 2905 and b["threshold_a"] == pytest.approx(1.17)
     assert d["pull_in"]["peak_ticks"] == b["timeout_ticks"]
-    assert b["timeout_ticks"] == math.ceil(b["time_to_threshold_s"] * 1.5 * 50e3 - 1e-9) + 1
-    assert b["recharge_time_s"] == pytest.approx(b["energy_j"] / 10.0)
+    assert b["timeout_ticks"] == math.ceil(b["time_to_threshold_s"] * 1.5 * 10e3 - 1e-9) + 1
+    assert b["recharge_time_s"] == pytest.approx(b["energy_j"] / 5.0)
     assert b["lowest_boost_v"] < b["boost_min_v"] and b["droop_v"] > 0
     # the switch: the boost at full charge (48 V + 5 %) + the freewheel diode
-    assert b["switch_voltage_v"] == pytest.approx(50.4 + 0.9)
+    assert b["switch_voltage_v"] == pytest.approx(50.4 + 0.8)
     assert d["release"]["peak_switch_voltage_v"] >= b["switch_voltage_v"]
     names = {c["name"]: c["ok"] for c in d["checks"]}
     assert names["boost_threshold"] and names["boost_droop"] and names["boost_switch_voltage"]
     h = (tmp_path / "d.h").read_text()
     for key in ("BOOST_THRESHOLD_CODE", "BOOST_TIMEOUT_TICKS", "BOOST_RECHARGE_TICKS", "BOOST_MIN_INTERVAL_TICKS"):
         assert f"COIL_{key}" in h
-    assert "#define COIL_BOOST_THRESHOLD_CODE          2731U" in h
+    assert "#define COIL_BOOST_THRESHOLD_CODE          2905U" in h
     sim = run_cli("simulate", str(EXAMPLE), "--supply", "12", "--coil-temp", "40", "--hold-time", "2 ms",
                   "--csv", str(tmp_path / "s.csv"))
     assert sim.returncode == 0, sim.stderr
@@ -185,7 +186,8 @@ def test_design_json_header_and_simulate(tmp_path, boosted):
     assert rows["boost_v"][0] == pytest.approx(48.0)
     peak = rows["time_s"] <= float(sim.stderr.split("peak ")[1].split(" ms")[0]) * 1e-3 * 0.999
     assert np.all(np.diff(rows["boost_v"][peak]) <= 0), "the capacitor only discharges in the peak"
-    assert rows["current_a"][peak][-1] < 4.401 <= rows["current_a"][~peak][0] + 1e-3
+    trip = 2905 * 3.3 / 4096 / 2.0      # the code's current with a nominal chain, A
+    assert rows["current_a"][peak][-1] < trip <= rows["current_a"][~peak][0] + 1e-4
 
 
 def test_emulated_boosted_drive_passes_check(tmp_path, boosted):
@@ -208,7 +210,7 @@ def test_emulated_boosted_drive_passes_check(tmp_path, boosted):
 def _variant(tmp_path, name, old, new, board=None):
     text = EXAMPLE.read_text().replace(old, new, 1)
     boards = EXAMPLES.parent / "boards"
-    text = text.replace('board = "boost-m32-diode"', f'board = "{boards / (board or "boost-m32-diode")}.toml"')
+    text = text.replace('board = "lab-m32-zener"', f'board = "{boards / (board or "lab-m32-zener")}.toml"')
     path = tmp_path / f"{name}.toml"
     path.write_text(text)
     return str(path)
@@ -217,13 +219,14 @@ def _variant(tmp_path, name, old, new, board=None):
 REFUSALS = [
     ("high-side", None, None, "sourcing-hs-zener", "switch.topology"),
     ("bridge", None, None, "bridge-m32-fast", "switch.topology"),
-    ("clamp", None, None, "fast-32bit-clamp", "freewheel.type"),
+    ("clamp", 'type = "diode"\ndiode_drop = "0.8 V"', 'type = "clamp"\nclamp_voltage = "75 V"', None,
+     "freewheel.type"),
     ("current-mode", "[hold]", '[hold]\nmode = "current"\nband = "0.1 A"', None, "hold.mode"),
     ("droop", 'max = "16 V"', 'max = "16 V"\nsource_resistance = "0.05 ohm"\ncapacitance = "1 mF"', None,
      "supply.source_resistance"),
     ("settle", "margin = 1.5", 'margin = 1.5\nsettle_time = "1 ms"', None, "pull_in.settle_time"),
     ("low-boost", 'boost = "48 V"', 'boost = "16.5 V"', None, "supply.boost"),
-    ("no-power", 'boost_power = "10 W"', "", None, "supply.boost_power"),
+    ("no-power", 'boost_power = "5 W"', "", None, "supply.boost_power"),
 ]
 
 
@@ -242,11 +245,16 @@ def test_unmodelled_combinations_refused_in_one_line(tmp_path, case):
 
 
 def test_driver_monte_carlo_and_firmware_emulation_refused(tmp_path):
+    """The reference C driver runs the peak for its ticks: a boosted peak is refused."""
     out = run_cli("firmware-driver", str(EXAMPLE), "--out", str(tmp_path / "fw"))
     assert out.returncode == 2 and "supply.boost" in out.stderr and out.stderr.strip().count("\n") == 0
     assert not (tmp_path / "fw").exists(), "nothing half-written"
     out = run_cli("design", str(EXAMPLE), "--samples", "100")
     assert out.returncode == 2 and "supply.boost" in out.stderr, out.stderr
+    # emulate --firmware with a driver folder (another drive's): refused before building
+    assert run_cli("firmware-driver", str(EXAMPLES / "demo-valve.toml"), "--out", str(tmp_path / "demo")).returncode == 0
+    out = run_cli("emulate", str(EXAMPLE), "--firmware", str(tmp_path / "demo"), "--duration", "0.1")
+    assert out.returncode == 2 and "supply.boost" in out.stderr and out.stderr.strip().count("\n") == 0, out.stderr
 
 
 def test_ideal_boost_source_is_the_plain_rl_rise(tmp_path):
@@ -260,8 +268,8 @@ def test_ideal_boost_source_is_the_plain_rl_rise(tmp_path):
     for key in ("boost_capacitance =", "boost_capacitance_tolerance =", "boost_power ="):
         text = "\n".join(line for line in text.splitlines() if not line.startswith(key)) + "\n"
     path = _variant(tmp_path, "ideal", "\n", "\n")
-    Path(path).write_text(text.replace('board = "boost-m32-diode"',
-                                       f'board = "{EXAMPLES.parent / "boards" / "boost-m32-diode.toml"}"'))
+    Path(path).write_text(text.replace('board = "lab-m32-zener"',
+                                       f'board = "{EXAMPLES.parent / "boards" / "lab-m32-zener.toml"}"'))
     d = design(load_drive(path))
     b = d.boost
     assert b.capacitance_f == 0 and b.recharge_time_s is None and b.droop_v == pytest.approx(0.0)
@@ -269,13 +277,13 @@ def test_ideal_boost_source_is_the_plain_rl_rise(tmp_path):
     # the worst corner's time is the plain RL rise (coildrive.model.rl, checked against
     # ngspice in test_reference_ngspice.py) from the lowest boost with the hot coil's R
     label = b.time_to_threshold_corner
-    assert "(hot)" in label and "R+5%" in label and "L+10%" in label
+    assert "(hot)" in label and "R+5%" in label and "L+10%" in label, label
     hot = float(label.split("coil ")[1].split(" degC")[0])   # as printed: 4 digits
     r_hot = copper_resistance(k.coil.resistance, k.coil.reference_temp, hot) * 1.05
     r = r_hot + k.switch.on_resistance + k.board.sense.resistance + k.supply.boost_resistance
-    # the longest peak: to the code's current with the chain reading low (2731 codes x
-    # 3.3 V / 4096 / (0.05 ohm x 10)), seen one conversion (2 us at 500 kHz) late
-    trip = 2731 * 3.3 / 4096 / 0.5
+    # the longest peak: to the code's current with the chain reading low (2905 codes x
+    # 3.3 V / 4096 / (0.1 ohm x 20)), seen one conversion (5 us at 200 kHz) late
+    trip = 2905 * 3.3 / 4096 / 2.0
     assert b.trip_max_a == pytest.approx(trip, rel=1e-12)
-    t = float(rise_time(trip, 0.0, 48 * 0.95, r, k.coil.inductance * 1.1)) + 2e-6
+    t = float(rise_time(trip, 0.0, 48 * 0.95, r, k.coil.inductance * 1.1)) + 5e-6
     assert b.time_to_threshold_s == pytest.approx(t, rel=1e-4), "the label's temperature has 4 digits"

@@ -223,9 +223,12 @@ def boost_cautions(b: BoostResult | None) -> list[str]:
     """The boost's voltage and its capacitor's stored energy."""
     if b is None:
         return []
-    out = [f"The boost rail reaches {b.boost_max_v:.3g} V: above the safe extra-low voltage limits of many "
-           "codes when it passes 60 V DC, and a shock or arc hazard at any level on an open board; keep "
-           "it guarded, and follow local codes and licensed practice."]
+    above = b.boost_max_v > 60.0
+    out = [f"The boost rail reaches {b.boost_max_v:.3g} V" + (
+           ": above 60 V DC, outside the extra-low-voltage range of many codes (a shock hazard)"
+           if above else " (below 60 V DC, the extra-low-voltage limit of many codes)")
+           + "; a charged rail can still arc and burn on an open board: keep it guarded, and "
+           "follow local codes and licensed practice."]
     if b.capacitance_f > 0:
         out.append(f"The boost capacitor stores up to {b.stored_energy_j:.3g} J and keeps it after the "
                    "board is switched off: give it a bleed resistor, discharge it before touching the "
