@@ -287,3 +287,17 @@ def test_ideal_boost_source_is_the_plain_rl_rise(tmp_path):
     assert b.trip_max_a == pytest.approx(trip, rel=1e-12)
     t = float(rise_time(trip, 0.0, 48 * 0.95, r, k.coil.inductance * 1.1)) + 5e-6
     assert b.time_to_threshold_s == pytest.approx(t, rel=1e-4), "the label's temperature has 4 digits"
+
+
+def test_a_boost_capacitor_too_small_fails_and_says_why(tmp_path):
+    # 3 uF (2.4 uF at -20 %) from 45.6 V: the first current maximum of the series RLC is
+    # below the 1.17 A threshold at the hot corner; the design fails, the JSON stays JSON
+    path = _variant(tmp_path, "small", 'boost_capacitance = "100 uF"', 'boost_capacitance = "3 uF"')
+    out = run_cli("design", path, "--json", "--header", str(tmp_path / "no.h"))
+    assert out.returncode == 1, out.stderr
+    d = json.loads(out.stdout)
+    assert d["boost"]["time_to_threshold_s"] is None and d["boost"]["timeout_ticks"] is None
+    assert d["pull_in"]["peak_ticks"] is None and "threshold 1.17 A" in d["pull_in"]["not_reached"]
+    check = {c["name"]: c for c in d["checks"]}["boost_threshold"]
+    assert not check["ok"] and "supply.boost_capacitance" in check["detail"] and "(hot)" in check["detail"]
+    assert not (tmp_path / "no.h").exists(), "a failed design writes no header"

@@ -136,8 +136,10 @@ def boost_result(drive: Drive, grid: CornerGrid, res, rate: float) -> BoostResul
     fast = _boost(drive, lp, lp.inductance, True)
     t_slow = _seen(drive, slow)            # the longest peak at each point
     finite = np.isfinite(t_slow)
-    k_slow = int(np.argmax(np.where(finite, t_slow, np.inf)))
     reached = bool(np.all(finite))
+    reachable = model.highest_current(slow)
+    # the worst corner: the longest peak, or where the boost drives the least
+    k_slow = int(np.argmax(t_slow) if reached else np.argmin(reachable))
     t_fast = model.threshold_time(i_th, fast)
     k_fast = int(np.argmin(t_fast))
     # slow side: the capacitor at the end of the peak (its lowest, while the boost alone
@@ -172,7 +174,7 @@ def boost_result(drive: Drive, grid: CornerGrid, res, rate: float) -> BoostResul
         time_to_threshold_corner=grid.label(k_slow),
         fastest_time_s=float(t_fast[k_fast]), fastest_corner=grid.label(k_fast),
         timeout_ticks=timeout, timeout_s=None if timeout is None else timeout / rate,
-        reachable_current_a=float(np.min(model.highest_current(slow))),
+        reachable_current_a=float(reachable[k_slow] if not reached else np.min(reachable)),
         end_current_max_a=float(i_end[k_i]), end_current_corner=grid.label(k_i),
         lowest_boost_v=float(v_low[k_low]) if reached else None, lowest_boost_corner=grid.label(k_low),
         main_supply_there_v=float(res.supply[k_low]),

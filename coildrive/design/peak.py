@@ -118,6 +118,10 @@ def plan_peak(drive: Drive, grid: CornerGrid, first: PointResults, entry_results
         k = int(np.argmin(i_inf))
         not_reached = (f"not reached: steady current {float(i_inf[k]):.4g} A < pull-in "
                        f"{drive.pull_in.current:.4g} A at {grid.label(k)}")
+        if drive.supply.boosted:
+            i_th = drive.pull_in.current_margin * drive.pull_in.current
+            not_reached = (f"not reached: the boost at its lowest drives at most {float(i_inf[k]):.4g} A, "
+                           f"below its threshold {i_th:.4g} A at {grid.label(k)}")
         if drive.armature is not None and math.isfinite(float(i_inf[k])) and i_inf[k] > drive.pull_in.current:
             not_reached = (f"not reached: the armature does not seat at {grid.label(k_pull)} "
                            "(see the armature_seats check)")
