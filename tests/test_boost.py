@@ -172,6 +172,10 @@ def test_design_json_header_and_simulate(tmp_path, boosted):
     # the switch: the boost at full charge (48 V + 5 %) + the freewheel diode
     assert b["switch_voltage_v"] == pytest.approx(50.4 + 0.8)
     assert d["release"]["peak_switch_voltage_v"] >= b["switch_voltage_v"]
+    offs = {o["event"]: o for o in d["release"]["turn_offs"]}
+    for event in ("end of peak", "over-current trip"):   # may come while the boost feeds the coil
+        assert offs[event]["switch_voltage_v"] == pytest.approx(50.4 + 0.8), event
+    assert offs["end of hold"]["switch_voltage_v"] == pytest.approx(16.0 + 0.8), "the hold: main supply"
     names = {c["name"]: c["ok"] for c in d["checks"]}
     assert names["boost_threshold"] and names["boost_droop"] and names["boost_switch_voltage"]
     h = (tmp_path / "d.h").read_text()

@@ -126,6 +126,27 @@ def boosted_points(drive: Drive, res):
                                peak_switch_voltage=np.maximum(v_sw, v_boost))
 
 
+def boosted_turn_offs(drive: Drive, grid: CornerGrid, res, offs: list[dict]) -> list[dict]:
+    """The turn-offs (:func:`coildrive.design.turnoff.turn_offs`) with the boost's share: a
+    peak cut short and an over-current trip may come while the boost feeds the coil, so
+    the switch sees the boost at full charge, not the main supply, plus the freewheel
+    path's voltage at the event's current. (The energies do not change: the freewheel
+    path across the coil takes the coil's energy whatever the rail.)"""
+    if not drive.supply.boosted:
+        return offs
+    lp = res.loop
+    v_top = drive.supply.boost * (1.0 + drive.supply.boost_tolerance)
+    out = []
+    for o in offs:
+        if o["event"] in ("end of peak", "over-current trip"):
+            v = _turn_off_voltage(drive, lp, v_top, np.full(np.shape(res.supply), o["current_a"]))
+            k = int(np.argmax(v))
+            if float(v[k]) > o["switch_voltage_v"]:
+                o = {**o, "switch_voltage_v": float(v[k]), "switch_voltage_corner": grid.label(k) + ", from the boost"}
+        out.append(o)
+    return out
+
+
 def boost_result(drive: Drive, grid: CornerGrid, res, rate: float) -> BoostResult:
     """The boosted peak's figures over the points of ``res`` (hot coil at every corner for
     the slow side); ``rate`` the scheduler tick rate (Hz)."""

@@ -30,7 +30,7 @@ from ..model.circuit import split_decay
 from ..model.losses import HoldLosses, hold_losses
 from ..model.pwm import pwm_steady_state
 from .diagnostics import rise_check, seat_check
-from .boost import boost_cautions, boost_checks, boost_result, boosted_points
+from .boost import boost_cautions, boost_checks, boost_result, boosted_points, boosted_turn_offs
 from .checks import base_checks, cautions, energy_checks, loss_cautions, loss_checks
 from .corners import nominal_point
 from .envelope import supply_codes
@@ -144,7 +144,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     hold = dataclasses.replace(hold, split_decay_saving=_split_saving(drive, hold))
     peak_end = np.asarray(res.peak_end_current, float)
     thresholds = adc_thresholds(drive, res, res_low, hold.min_mean_current_a, env)
-    offs = turn_offs(drive, env, res, peak_end, thresholds.trip_current_a)
+    offs = boosted_turn_offs(drive, env, res, turn_offs(drive, env, res, peak_end, thresholds.trip_current_a))
     release = release_result(drive, env, res, offs)
     topo = topology_result(drive, env, res, peak_end, thresholds.trip_current_a)
     release = pumped_release(release, topo)
