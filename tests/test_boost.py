@@ -90,6 +90,26 @@ def test_boosted_peak_against_ngspice(tmp_path):
     assert res["vsw"] == pytest.approx(v_off + V_D, rel=0.01), (res["vsw"], v_off + V_D)
 
 
+@pytest.mark.parametrize("damping", ["under", "critical", "over"])
+def test_every_damping_against_scipy(damping):
+    from scipy.integrate import solve_ivp
+
+    r, ell = R_ON + R_B, L_COIL
+    c = {"under": C_B, "critical": 4 * ell / r**2, "over": 10 * 4 * ell / r**2}[damping]
+    b = _b(c=c)
+    i_th = 0.8 * float(boost_model.highest_current(b))
+    t_th = float(boost_model.threshold_time(i_th, b))
+
+    def hit(t, y):
+        return y[0] - i_th
+    hit.terminal = True
+    sol = solve_ivp(lambda t, y: [(y[1] - r * y[0]) / ell, -y[0] / c], (0, 1.0), [0.0, V_B],
+                    method="Radau", rtol=1e-10, atol=1e-12, events=hit)
+    # scipy solve_ivp (Radau): the time to the threshold within 1e-6, in every regime
+    assert sol.t_events[0][0] == pytest.approx(t_th, rel=1e-6), damping
+    assert sol.y_events[0][0][1] == pytest.approx(float(boost_model.state(t_th, b)[1]), rel=1e-6)
+
+
 def test_rise_and_energy_balance_against_scipy():
     from scipy.integrate import quad, solve_ivp
 
