@@ -91,6 +91,8 @@ BOUNDS: dict[str, tuple[float, float, str]] = {
     "coil.release_time": (1e-6, 10.0, "time"),
     "coil.flux_current": (0.0, 1000.0, "current"),
     "coil.flux_linkage": (0.0, 1000.0, "flux_linkage"),
+    "coil.eddy_resistance": (1e-3, 1e9, "resistance"),
+    "coil.eddy_time_constant": (1e-9, 1.0, "time"),
     "supply.min": (0.5, 1000.0, "voltage"),
     "supply.nominal": (0.5, 1000.0, "voltage"),
     "supply.max": (0.5, 1000.0, "voltage"),
@@ -214,6 +216,11 @@ class Coil:
     (Wb) tabulate its flux linkage against current, from (0, 0), both rising; empty for
     the linear coil. With a curve, ``inductance`` is the slope of its first segment
     (the small-signal value, for reports) and the tolerance scales the whole curve.
+
+    Eddy currents (docs/coil-model.md): ``eddy_resistance`` (ohm) across the magnetising
+    branch, given as such or as ``eddy_time_constant`` (s, ``L / R_e`` with ``inductance``,
+    the small-signal value); 0 = none. ``eddy_time_constant`` keeps the given time
+    constant (0 when the resistance was given), for reports and the input hash.
     """
 
     resistance: float
@@ -231,6 +238,8 @@ class Coil:
     release_time: float = 0.0
     flux_current: tuple[float, ...] = ()
     flux_linkage: tuple[float, ...] = ()
+    eddy_resistance: float = 0.0
+    eddy_time_constant: float = 0.0
 
     @property
     def derived(self) -> tuple[str, ...]:
@@ -597,7 +606,8 @@ class Drive:
 #: Keys added after the first release: left out of the input hash while they hold their
 #: default, so that files which do not use them keep their hash (and headers their bytes).
 _LATER_FIELDS = (
-    (("coil",), Coil, _DATASHEET_KEYS + ("stated_temp", "flux_current", "flux_linkage")),
+    (("coil",), Coil, _DATASHEET_KEYS + ("stated_temp", "flux_current", "flux_linkage",
+                                              "eddy_resistance", "eddy_time_constant")),
     (("hold",), Hold, _CURRENT_MODE_KEYS + ("regulation",)),
     (("thermal",), Thermal, ("capacity",)),
     (("pull_in",), PullIn, ("current_margin", "settle_time", "compensate")),
@@ -986,6 +996,13 @@ def _read_coil(s: _Section, armature: Armature | None) -> tuple[Coil, dict[str, 
                              f"outside {bounds_text(section + '.current')}")
             sheet[section] = value
     table = _read_flux_curve(s, armature)
+    eddy = [k for k in ("eddy_resistance", "eddy_time_constant") if k in s.table]
+    if len(eddy) == 2:
+        raise _both(s, "eddy_resistance", "eddy_time_constant", "the eddy-current term "
+                    "(eddy_time_constant = inductance / eddy_resistance)")
+    if eddy and armature is not None:
+        raise s.fail(eddy[0], "an eddy-current term with [armature] is not supported yet: leave "
+                     "it out, or leave out [armature]")
     coil = Coil(
         resistance=resistance,
         reference_temp=reference_temp,
@@ -1000,6 +1017,13 @@ def _read_coil(s: _Section, armature: Armature | None) -> tuple[Coil, dict[str, 
         operate_time=optional("operate_time", "time"), release_time=optional("release_time", "time"),
         flux_current=table[0] if table else (), flux_linkage=table[1] if table else (),
     )
+    if eddy:
+        tau = optional("eddy_time_constant", "time")
+        r_e = coil.inductance / tau if tau else optional("eddy_resistance", "resistance")
+        if not _in_bounds(r_e, "coil.eddy_resistance"):
+            raise s.fail(eddy[0], f"gives an eddy resistance of {r_e:g} ohm (inductance / "
+                         f"eddy_time_constant), outside {bounds_text('coil.eddy_resistance')}")
+        coil = dataclasses.replace(coil, eddy_resistance=r_e, eddy_time_constant=tau)
     s.finish()
     return coil, sheet
 
@@ -1068,6 +1092,33 @@ def _flux_curve_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel
     if freewheel.split_decay:
         raise InputError(source, "freewheel.split_decay", "split decay with a flux-linkage curve "
                          "(coil.flux_current) is not supported yet")
+
+
+def _eddy_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel, switch: Switch,
+                 thermal: Thermal, duty: "Duty | None", supply: Supply) -> None:
+    """What an eddy-current term does not yet work with: one line naming the key."""
+    if not coil.eddy_resistance:
+        return
+    what = "an eddy-current term (coil.eddy_resistance / eddy_time_constant)"
+    if hold.regulation == "closed_loop":
+        raise InputError(source, "hold.regulation", f"\"closed_loop\" with {what} is not "
+                         "supported yet: use \"fixed\" or \"supply_table\"")
+    if hold.mode == "current":
+        raise InputError(source, "hold.mode", f"\"current\" with {what} is not supported yet: "
+                         "use mode = \"voltage\"")
+    if switch.topology == "full_bridge":
+        raise InputError(source, "switch.topology", f"\"full_bridge\" with {what} is not "
+                         "supported yet")
+    if freewheel.split_decay:
+        raise InputError(source, "freewheel.split_decay", f"split decay with {what} is not "
+                         "supported yet")
+    if duty is not None or thermal.capacity > 0:
+        raise InputError(source, "duty" if duty is not None else "thermal.capacity",
+                         f"an on/off cycle's coil temperature with {what} is not supported yet: "
+                         "leave [duty] and thermal.capacity / time_constant out")
+    if supply.droops:
+        raise InputError(source, "supply.source_resistance", f"a drooping bus with {what} is "
+                         "not supported yet: leave source_resistance out")
 
 
 def _mechanics_currents(arm: Armature, coil: Coil) -> dict[str, float]:
@@ -1410,6 +1461,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
     merged, origins = _merged(brd.source, fw_board, source, fw_drive)
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
     _check_bridge(source, origins, switch, freewheel, supply, hold, armature)
+    _eddy_limits(source, coil, hold, freewheel, switch, thermal, duty, supply)
     _check_droop(source, origins, coil, switch, freewheel, supply, hold, armature)
     _flux_curve_limits(source, coil, hold, freewheel, switch, thermal, duty)
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:

@@ -23,6 +23,7 @@ import numpy as np
 from ..config import Drive
 from .circuit import full_bridge, loop, split_decay
 from . import supply as bus_model
+from .eddy import EddyCoil
 from .flux import FluxCoil
 from .rl import decay_current, decay_time, rise_current
 from .topology import coil_voltage, sense_leg_drop, topology_of
@@ -57,11 +58,13 @@ class Waveform:
     bypass_on: np.ndarray | None = None
     node_voltage: np.ndarray | None = None
     coil_voltage: np.ndarray | None = None
+    magnetising_current: np.ndarray | None = None
 
     def to_csv(self) -> str:
         """CSV text with header ``time_s,current_a,switch_on,switch_voltage_v,sense_current_a``
         (then ``bypass_on`` with split decay, ``position_m,velocity_m_s`` with an armature,
-        ``node_voltage_v,coil_voltage_v`` with a high-side switch)."""
+        ``node_voltage_v,coil_voltage_v`` with a high-side switch, ``magnetising_current_a``
+        with an eddy-current term)."""
         buf = io.StringIO()
         cols = [self.time, self.current, self.switch_on, self.switch_voltage, self.sense_current]
         head = "time_s,current_a,switch_on,switch_voltage_v,sense_current_a"
@@ -78,6 +81,10 @@ class Waveform:
             cols += [self.node_voltage, self.coil_voltage]
             head += ",node_voltage_v,coil_voltage_v"
             fmt += ["%.6e", "%.6e"]
+        if self.magnetising_current is not None:
+            cols.append(self.magnetising_current)
+            head += ",magnetising_current_a"
+            fmt.append("%.9e")
         buf.write(head + "\n")
         np.savetxt(buf, np.column_stack(cols), delimiter=",", fmt=fmt)
         return buf.getvalue()
@@ -99,6 +106,9 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
         return armature_actuation(drive, supply, coil_temp, peak_time, duty, frequency,
                                   hold_time, r_factor, l_factor, points, label)
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
+    if isinstance(lp.inductance, EddyCoil):   # an eddy-current term: its own sampling
+        return _eddy_actuation(drive, lp, supply, peak_time, duty, frequency, hold_time,
+                               points, label)
     if isinstance(lp.inductance, FluxCoil):   # a saturating coil: its own sampling
         return _flux_actuation(drive, lp, supply, peak_time, duty, frequency, hold_time,
                                points, label)
@@ -138,6 +148,24 @@ def _flux_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: flo
     v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
     events = {"on": 0.0, "hold": peak_time, "off": t_cut, "zero": t_cut + tz}
     return Waveform(time, current, on, v_sw, sense, events, label)
+
+
+def _eddy_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: float,
+                    frequency: float, hold_time: float, points: int, label: str) -> Waveform:
+    """:func:`actuation` with an eddy resistance (:mod:`coildrive.model.eddy_waveform`):
+    ``current`` is the terminal current, ``magnetising_current`` the flux's."""
+    from .eddy_waveform import actuation as eddy_samples
+
+    ts, cs, ms, ons, t_cut, t_zero = eddy_samples(drive, lp, peak_time, duty, frequency,
+                                                   hold_time, points)
+    time = np.concatenate(ts)
+    current = np.concatenate(cs)
+    on = np.concatenate(ons).astype(np.int8)
+    v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
+    events = {"on": 0.0, "hold": peak_time, "off": t_cut, "zero": t_zero}
+    return Waveform(time, current, on, v_sw, sense, events, label,
+                    **node_columns(drive, supply, current, on, v_sw),
+                    magnetising_current=np.concatenate(ms))
 
 
 def peak_samples(peak_time: float, v: float, r_on: float, ind: float, big: int,

@@ -641,6 +641,10 @@ def check_tunable(drive: Drive, who: str) -> None:
                          "curve yet (the sweep would solve ~10^5 exact orbits): tune with "
                          "coil.inductance at the hold current's incremental value, then design "
                          "with the curve")
+    if drive.coil.eddy_resistance:
+        key = "coil.eddy_time_constant" if drive.coil.eddy_time_constant else "coil.eddy_resistance"
+        raise InputError(drive.source, key, "tuning does not support an eddy-current term yet: "
+                         "tune without it, then design with it")
 
 
 def tune(drive: Drive, options: TuneOptions | None = None) -> TuneResult:
