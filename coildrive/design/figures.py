@@ -219,7 +219,8 @@ def release_result(drive: Drive, grid: CornerGrid, res: PointResults, offs: list
     k_rel = worst(res.release_time)
     rating = drive.switch.max_voltage
     settle = float(np.max(res.release_zero_time))
-    if res.armature is not None:
+    if res.armature is not None or drive.coil.eddy_resistance:
+        # the armature back on its stop; the flux (an eddy term) down to the drop-out current
         settle = max(settle, float(np.max(res.release_time)))
     lockout = math.ceil(settle * drive.board.tick.rate - 1e-9) + 1 if math.isfinite(settle) else 0
     v_sw = max(float(np.max(res.peak_switch_voltage)), *(o["switch_voltage_v"] for o in offs))

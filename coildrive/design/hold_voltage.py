@@ -35,6 +35,7 @@ from .corners import nominal_point
 from .envelope import supply_codes
 from .evaluate import PointResults, evaluate
 from .firmware import firmware_arrays, firmware_setting
+from .eddy import eddy_result
 from .figures import (ASSUMED_DIODE_DROP, adc_code, adc_thresholds, corners_of, hold_spread,
                       loss_figures, path_name, pull_in_result, release_result, slow_hold_drive,
                       worst)
@@ -176,7 +177,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                  split_decay=split, actuation_points=points, peak_table=pk.table,
                  thermal_cycle=thermal, topology=topo, supply=sup,
                  rise_check=rise_check(drive, env, res, f_hold),
-                 seat_check=seat_check(drive, env, res_low))
+                 seat_check=seat_check(drive, env, res_low), eddy=eddy_result(drive, env, res))
     if samples > 0:
         from .montecarlo import monte_carlo
 

@@ -365,6 +365,37 @@ class ReleaseResult:
 
 
 @dataclass(frozen=True)
+class EddyResult:
+    """The eddy-current term (``design --json`` key ``eddy``; docs/coil-model.md).
+
+    ``resistance_ohm`` across the magnetising branch, ``time_constant_s`` its ``L / R_e``
+    with the small-signal inductance, ``given`` the file key it came from.
+    ``switch_on_step_a``: the terminal current's step at switch-on, ``V / (R_on + R_e)``,
+    at its highest corner (``step_corner``). ``block_current_a``: the magnetising current
+    at which the release path stops conducting (``V_off / R_e``; the flux then dies
+    through ``R_e``), its highest. ``release_eddy_energy_j``: the eddy resistance's share
+    of the release from the top of the hold ripple, at its worst corner
+    (``release_corner``), beside ``release_freewheel_energy_j``, the freewheel elements'
+    there. ``flux_outlasts_s``: how much longer the flux takes to fall to the drop-out
+    current than the terminal current takes to reach zero (0 when it does not).
+    ``hold_eddy_power_w``: the eddy resistance's power in the hold, at its worst corner
+    (``hold_corner``)."""
+
+    resistance_ohm: float
+    time_constant_s: float
+    given: str
+    switch_on_step_a: float
+    step_corner: str
+    block_current_a: float
+    release_eddy_energy_j: float
+    release_freewheel_energy_j: float
+    release_corner: str
+    flux_outlasts_s: float
+    hold_eddy_power_w: float
+    hold_corner: str
+
+
+@dataclass(frozen=True)
 class BridgeResult:
     """A full bridge's decay paths and the energy its fast decay returns to the supply
     (``design --json`` key ``topology.bridge``). Energies in J, voltages in V.
@@ -617,6 +648,7 @@ class Design:
     seat_check: SeatCheck | None = None
     datasheet: object | None = None   # design.datasheet.DatasheetResult, with datasheet inputs
     supply: SupplyResult | None = None
+    eddy: EddyResult | None = None
 
     @property
     def ok(self) -> bool:
@@ -675,6 +707,8 @@ class Design:
             out["rise_check"] = asdict(self.rise_check)
         if self.seat_check is not None:
             out["seat_check"] = asdict(self.seat_check)
+        if self.eddy is not None:
+            out["eddy"] = asdict(self.eddy)
         return json_ready(out)
 
 

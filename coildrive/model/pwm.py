@@ -114,6 +114,13 @@ def _flux_steady_state(duty, frequency, v_on, r_on, r_off, v_off, coil: FluxCoil
                           charge_off=o.charge_off, square_off=o.square_off)
 
 
+def coil_heat(ss: PwmSteadyState, r_coil):
+    """W that heats the coil in the hold: the copper's ``I_rms^2 R_coil``, plus the eddy
+    currents' loss in the core (``eddy_energy`` per period) when there is an eddy term."""
+    heat = ss.rms**2 * r_coil
+    return heat if ss.eddy_energy is None else heat + ss.eddy_energy / ss.period
+
+
 def _eddy_steady_state(duty, frequency, v_on, r_on, r_off, v_off, coil: EddyCoil) -> PwmSteadyState:
     """:func:`pwm_steady_state` with an eddy resistance, from its exact orbit
     (:func:`coildrive.model.eddy.orbit`)."""
