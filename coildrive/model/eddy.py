@@ -363,8 +363,13 @@ def _blocked_newton(e, t_on, t_off, von_t, ron_t, voff_t, roff_t, ib, iterations
     points that do not converge go to :func:`_blocked_fixed_point`."""
     mag, re_ = e.magnetising, e.resistance
     n = ib.size
-    a = 0.5 * ib
-    b = branch_current(mag, t_on, a, von_t, ron_t)
+    # start: the linear branch at the incremental inductance of ib / 2, the whole off-time
+    # through R_e (the orbit's own case when the turn-off step takes the current to zero)
+    ell = mag.incremental(0.5 * ib)
+    top = von_t / ron_t
+    e_on, e_t = np.exp(-t_on * ron_t / ell), np.exp(-t_off * re_ / ell)
+    a = np.clip(top * (1.0 - e_on) * e_t / (1.0 - e_on * e_t), 1e-3 * ib, 0.999 * ib)
+    b = top + (a - top) * e_on
 
     three = mag.with_scale(np.tile(mag.scale, 3))
     vs, rs = np.concatenate([von_t, -voff_t, 0.0 * ib]), np.concatenate([ron_t, roff_t, re_])
