@@ -252,3 +252,29 @@ def test_no_eddy_term_no_new_outputs(tmp_path):
     csv = tmp_path / "b.csv"
     run_cli("simulate", str(EXAMPLE), "--supply", "24", "--coil-temp", "20", "--csv", str(csv))
     assert "magnetising" not in csv.read_text().splitlines()[0]
+
+
+def test_check_passes_a_capture_of_the_eddy_coil(tmp_path):
+    """A synthetic capture of the coil (the virtual device's samples) checks against its
+    own design: the times the sensed current takes are the terminal current's."""
+    from coildrive.bench.capture_file import write_capture
+    from coildrive.bench.synth import synth_capture
+    from coildrive.design import firmware_setting
+
+    path = _example_drive(tmp_path, 'eddy_resistance = "400 ohm"', EXAMPLES / "reagent-valve-zener-24v.toml")
+    d = load_drive(path)
+    des = design(d)
+    duty, peak = firmware_setting(des, 24.0)
+    cap = tmp_path / "eddy.cdcap"
+    write_capture(cap, synth_capture(d, peak, duty, des.hold.frequency_hz, supply=24.0, coil_temp=20.0,
+                                     hold_time=0.02, actuations=2))
+    r = run_cli("check", str(cap), str(path), "--supply", "24", "--coil-temp", "20", "--json")
+    doc = json.loads(r.stdout)
+    assert r.returncode == 0 and doc["ok"], r.stdout
+    rows = {x["name"]: x for x in doc["items"]}
+    for name in ("pull_in_time", "release_time", "hold_mean"):
+        assert rows[name]["status"] == "pass", rows[name]
+    # the terminal current reaches the pull-in current before the flux does
+    lp = loop(d, 24.0, 20.0)
+    t_flux = float(rise_time(d.pull_in.current, 0.0, lp.v_on, lp.r_on, lp.inductance))
+    assert rows["pull_in_time"]["predicted"] < t_flux
