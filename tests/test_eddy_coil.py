@@ -238,6 +238,7 @@ def test_design_and_simulate_with_an_eddy_term(tmp_path):
     assert head.endswith(",magnetising_current_a"), head
     data = np.loadtxt(csv, delimiter=",", skiprows=1)
     t, i, m = data[:, 0], data[:, 1], data[:, -1]
+    assert np.all(np.diff(t) > 0), "time rises strictly (each edge's second row 1 ns on)"
     d = load_drive(path)
     lp = loop(d, 24.0, 20.0)
     # the switch-on step V / (R_on + R_e), the magnetising current from zero

@@ -150,6 +150,10 @@ def _flux_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: flo
     return Waveform(time, current, on, v_sw, sense, events, label)
 
 
+#: With an eddy term, the time between the rows before and after a switch edge (s).
+EDGE = 1e-9
+
+
 def _eddy_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: float,
                     frequency: float, hold_time: float, points: int, label: str) -> Waveform:
     """:func:`actuation` with an eddy resistance (:mod:`coildrive.model.eddy_waveform`):
@@ -159,6 +163,15 @@ def _eddy_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: flo
     ts, cs, ms, ons, t_cut, t_zero = eddy_samples(drive, lp, peak_time, duty, frequency,
                                                    hold_time, points)
     time = np.concatenate(ts)
+    # each switch edge has a row before and after the step: the one after sits EDGE s
+    # later (a switch edge's own scale), so that time rises strictly
+    step = np.diff(time)
+    gap = min(EDGE, 0.01 * step[step > 1e-15].min(initial=1.0))
+    for _ in range(4):   # a step that also ends the conduction: three rows at one instant
+        same = np.flatnonzero(np.diff(time) <= 1e-15) + 1      # the same instant, to rounding
+        if same.size == 0:
+            break
+        time[same] = time[same - 1] + gap
     current = np.concatenate(cs)
     on = np.concatenate(ons).astype(np.int8)
     v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
