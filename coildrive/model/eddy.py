@@ -305,10 +305,7 @@ def orbit(e: EddyCoil, t_on, t_off, v_on, r_on, r_off, v_off, iterations: int = 
     voff_t, roff_t = thevenin(v_off, r_off, re_)     # decays toward -voff_t / roff_t
     ib = block_current(v_off, re_)
     if isinstance(mag, FluxCoil):
-        # conducting throughout exactly when, from a = ib, the freewheel still conducts
-        # at the end of the off-time (P rises with a with a slope below one)
-        top = branch_current(mag, t_on, ib, von_t, ron_t)
-        ccm = (t_off <= 0) | (top > ib) & (flux.time(mag, top, np.minimum(ib, top), -voff_t, roff_t) > t_off)
+        ccm = (t_off <= 0) | _conducts(mag, t_on, t_off, von_t, ron_t, voff_t, roff_t, ib)
         a, b = np.zeros(n), np.zeros(n)
         k = np.flatnonzero(ccm)
         if k.size:
@@ -332,15 +329,27 @@ def orbit(e: EddyCoil, t_on, t_off, v_on, r_on, r_off, v_off, iterations: int = 
     # the freewheel's conduction: the whole off-time, or until the magnetising current
     # reaches V_off / R_e
     stop = np.where(ccm, a, np.minimum(ib, b))
-    tb = np.where(ccm, t_off, np.where(b > ib, branch_time(mag, b, np.where(b > ib, ib, b), -voff_t,
-                                                             roff_t), 0.0))
-    cond = np.minimum(tb, t_off)
-    qm, sm = branch_integrals(mag, t_on, a, b, von_t, ron_t)
+    if isinstance(mag, FluxCoil):
+        # the three segments' time and integrals in one pass (a curve's depend only on the
+        # end currents): on a -> b, conducting b -> stop, through R_e stop -> a
+        three = mag.with_scale(np.tile(mag.scale, 3))
+        with np.errstate(invalid="ignore"):
+            ts, qs, ss = flux.integral(three, np.concatenate([a, b, stop]), np.concatenate([b, stop, a]),
+                                       np.concatenate([von_t, -voff_t, 0.0 * re_]),
+                                       np.concatenate([ron_t, roff_t, re_]), (0, 1, 2))
+        cond = np.where(ccm, t_off, np.minimum(ts[n:2 * n], t_off))
+        qm, sm = qs[:n], ss[:n]
+        qm_off, sm_off = qs[n:2 * n], ss[n:2 * n]
+        s_tail = np.where(ccm, 0.0, ss[2 * n:])
+    else:
+        tb = np.where(ccm, t_off, np.where(b > ib, branch_time(mag, b, np.where(b > ib, ib, b), -voff_t,
+                                                                 roff_t), 0.0))
+        cond = np.minimum(tb, t_off)
+        qm, sm = branch_integrals(mag, t_on, a, b, von_t, ron_t)
+        qm_off, sm_off = branch_integrals(mag, cond, b, stop, -voff_t, roff_t)
+        _, s_tail = branch_integrals(mag, t_off - cond, stop, a, 0.0, re_)
     q_on, s_on, w_on = _terminal_integrals(t_on, qm, sm, v_on, r_on, re_)
-    qm, sm = branch_integrals(mag, cond, b, stop, -voff_t, roff_t)
-    q_off, s_off, w_off = _terminal_integrals(cond, qm, sm, -v_off, r_off, re_)
-    tail = t_off - cond
-    _, s_tail = branch_integrals(mag, tail, stop, a, 0.0, re_)
+    q_off, s_off, w_off = _terminal_integrals(cond, qm_off, sm_off, -v_off, r_off, re_)
     w_tail = np.where(ccm, 0.0, re_ * s_tail)
     t_max = terminal(b, v_on, r_on, re_)
     t_min = np.where(ccm, terminal(a, -v_off, r_off, re_), 0.0)
@@ -351,6 +360,38 @@ def orbit(e: EddyCoil, t_on, t_off, v_on, r_on, r_off, v_off, iterations: int = 
     t_min = np.where(full, t_max, t_min)
     out = (a, b, ~ccm, cond, q_on, s_on, q_off, s_off, w_on + w_off + w_tail, t_min, t_max)
     return EddyOrbit(*(np.reshape(x, shape) for x in out))
+
+
+def _conducts(mag, t_on, t_off, von_t, ron_t, voff_t, roff_t, ib):
+    """Whether the freewheel of a saturating branch conducts through the whole off-time
+    in the orbit: exactly when, from ``a = ib``, the on-time ends at a ``b_c`` from which
+    the decay back to ``ib`` takes longer than the off-time (``P`` rises with ``a`` with
+    a slope below one). Both times rise with that end current, so with ``b_g`` the end
+    current whose decay takes exactly the off-time, it conducts iff ``b_c > b_g``. Two
+    probes 5 % either side of the linear estimate of ``b_c`` settle most points with one
+    batch of segment times (``T_on(ib -> b)`` against ``t_on``, ``T_off(b -> ib)`` against
+    ``t_off``); the rest (``b_g`` between the probes) take the exact on-current."""
+    n = ib.size
+    top = von_t / ron_t
+    ell = mag.incremental(ib)
+    guess = top + (ib - top) * np.exp(-t_on * ron_t / ell)
+    lo = np.maximum(ib + 0.95 * (guess - ib), ib * (1 + 1e-9))
+    hi = np.minimum(ib + 1.05 * (guess - ib), top * (1 - 1e-12))
+    four = mag.with_scale(np.tile(mag.scale, 4))
+    t = flux.time(four, np.concatenate([ib, ib, lo, hi]), np.concatenate([lo, hi, ib, ib]),
+                  np.concatenate([von_t, von_t, -voff_t, -voff_t]),
+                  np.concatenate([ron_t, ron_t, roff_t, roff_t]))
+    f_lo, f_hi, g_lo, g_hi = t[:n] - t_on, t[n:2 * n] - t_on, t[2 * n:3 * n] - t_off, t[3 * n:] - t_off
+    yes = (f_lo <= 0) & (g_lo > 0)      # b_g < lo <= b_c
+    no = (f_hi >= 0) & (g_hi < 0)       # b_c <= hi < b_g
+    out = yes.copy()
+    rest = np.flatnonzero(~yes & ~no)
+    if rest.size:
+        k = mag[rest]
+        b = branch_current(k, t_on[rest], ib[rest], von_t[rest], ron_t[rest])
+        out[rest] = (b > ib[rest]) & (flux.time(k, b, np.minimum(ib[rest], b), -voff_t[rest], roff_t[rest])
+                                      > t_off[rest])
+    return out
 
 
 def _blocked_newton(e, t_on, t_off, von_t, ron_t, voff_t, roff_t, ib, iterations: int = 30):
