@@ -279,3 +279,42 @@ def test_check_passes_a_capture_of_the_eddy_coil(tmp_path):
     lp = loop(d, 24.0, 20.0)
     t_flux = float(rise_time(d.pull_in.current, 0.0, lp.v_on, lp.r_on, lp.inductance))
     assert rows["pull_in_time"]["predicted"] < t_flux
+
+
+def test_compiled_driver_streams_the_terminal_current(tmp_path):
+    """The reference C driver in the loop (gcc) on the eddy coil: one actuation with no
+    fault, and the codes just after the switch-on show the step V / (R_on + R_e)."""
+    from conftest import require_tool
+
+    require_tool("gcc")
+    from coildrive.bench import FrameDecoder
+    from coildrive.bench.device import DeviceOptions
+    from coildrive.bench.firmware_device import FirmwareDevice
+    from coildrive.bench.messages import Event, EventKind, Samples
+    from coildrive.codegen.host_build import build_firmware
+
+    path = _example_drive(tmp_path, 'eddy_resistance = "400 ohm"', EXAMPLES / "reagent-valve-zener-24v.toml")
+    out = tmp_path / "fw"
+    r = run_cli("firmware-driver", str(path), "--out", str(out))
+    assert r.returncode == 0, r.stderr
+    d = design(load_drive(path))
+    dev = FirmwareDevice(d, build_firmware(out, d, cache=tmp_path / "cache"),
+                         DeviceOptions(supply=24.0, coil_temp=20.0, first_actuation=0.002, seed=3,
+                                       hold_time=0.005))
+    dec, msgs, t = FrameDecoder(), [], 0.0
+    while t < 0.2 and EventKind.OFF not in [m.kind for m in msgs if isinstance(m, Event)]:
+        t += 0.005
+        msgs += dec.feed(dev.read(t))
+    events = [m for m in msgs if isinstance(m, Event)]
+    kinds = [m.kind for m in events]
+    assert EventKind.FAULT not in kinds and EventKind.PEAK_END in kinds, kinds
+    on = next(m.index for m in events if m.kind == EventKind.ON)
+    codes = {s.first_index + k: int(c) for s in msgs if isinstance(s, Samples) for k, c in enumerate(s.codes)}
+    board = d.drive.board
+    amps = board.adc.reference / 2 ** board.adc.bits / (board.sense.resistance * board.sense.gain)
+    lp = loop(d.drive, 24.0, 20.0)
+    step = float(lp.v_on / (lp.r_on + d.drive.coil.eddy_resistance))
+    # the switch closes a few samples after the event (at the driver's next PWM period);
+    # its first sample reads the whole step at once (a plain coil reads one sample's slope)
+    k = next(k for k in range(on, on + 200) if codes.get(k, 0) > 0)
+    assert codes[k - 1] == 0 and codes[k] * amps == pytest.approx(step, rel=0.03), (codes[k], step / amps)
