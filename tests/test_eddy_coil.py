@@ -231,6 +231,9 @@ def test_design_and_simulate_with_an_eddy_term(tmp_path):
     ed = doc["eddy"]
     assert ed["given"] == "coil.eddy_time_constant" and ed["time_constant_s"] == pytest.approx(0.2e-3)
     assert ed["switch_on_step_a"] > 0 and ed["release_eddy_energy_j"] > 0
+    # the over-current trip sits above what the channel reads: the terminal current, which
+    # ends the peak above the magnetising current by (V - R i_m) / (R + R_e)
+    assert doc["adc"]["healthy_max_current_a"] > doc["pull_in"]["peak_end_current_max_a"]
     csv = tmp_path / "a.csv"
     r = run_cli("simulate", str(path), "--supply", "24", "--coil-temp", "20", "--csv", str(csv))
     assert r.returncode == 0, r.stderr

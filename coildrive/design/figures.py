@@ -13,6 +13,7 @@ import math
 import numpy as np
 
 from ..config import Drive
+from ..model import eddy
 from ..model.circuit import full_bridge, split_decay
 from ..model.flux import small_signal
 from ..model.losses import HoldLosses
@@ -253,6 +254,10 @@ def adc_thresholds(drive: Drive, res: PointResults, res_low: PointResults, min_m
     low, high = reading_factors(drive)
     peaks = np.asarray(res.peak_end_current, float)
     tops = np.asarray(res.hold.i_max, float)
+    if res.hold.terminal_max is not None:   # an eddy term: the channel reads the terminal current
+        lp = res.loop
+        peaks = np.asarray(eddy.terminal(peaks, lp.v_on, lp.r_on, lp.inductance.resistance), float)
+        tops = np.asarray(res.hold.terminal_max, float)
     healthy = np.maximum(np.where(np.isfinite(peaks), peaks, 0.0), np.where(np.isfinite(tops), tops, 0.0))
     k = worst(healthy)
     over_a = OVER_CURRENT_FACTOR * float(healthy[k]) * high
