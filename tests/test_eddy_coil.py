@@ -335,3 +335,20 @@ def test_compiled_driver_streams_the_terminal_current(tmp_path):
     # its first sample reads the whole step at once (a plain coil reads one sample's slope)
     k = next(k for k in range(on, on + 200) if codes.get(k, 0) > 0)
     assert codes[k - 1] == 0 and codes[k] * amps == pytest.approx(step, rel=0.03), (codes[k], step / amps)
+
+
+@pytest.mark.parametrize("curve", [True, False], ids=["curve", "linear"])
+def test_the_flux_rises_slower_by_one_plus_r_over_re(tmp_path, curve):
+    """Kirchhoff's laws: dpsi/dt = (V - R i_m) R_e / (R + R_e), so every time along the
+    switch-on is the plain coil's times (1 + R / R_e), with the same asymptote V / R
+    (derived in coildrive/model/eddy.py; the ngspice and scipy tests check the circuit)."""
+    src = EXAMPLE if curve else EXAMPLES / "reagent-valve-zener-24v.toml"
+    plain = load_drive(_example_drive(tmp_path, "", src))
+    for r_e in (50.0, 300.0, 5000.0):
+        d = load_drive(_example_drive(tmp_path, f'eddy_resistance = "{r_e} ohm"', src))
+        a, b = loop(plain, **POINT), loop(d, **POINT)
+        r = float(a.r_on)
+        for i1 in (0.2, 0.55, 0.9):
+            t0 = float(rise_time(i1, 0.0, a.v_on, a.r_on, a.inductance))
+            t1 = float(rise_time(i1, 0.0, b.v_on, b.r_on, b.inductance))
+            assert t1 == pytest.approx(t0 * (1.0 + r / r_e), rel=1e-9), (r_e, i1)

@@ -109,7 +109,7 @@ def test_rise_and_release_match_ngspice(tmp_path, curve):
     text = _eddy_netlist(_netlist(p, "eddy rise", t_on, 10 * tstop, tstop, step, measures), lp, curve)
     res = _run(tmp_path, "eddy-rise", text)
     print(f"eddy ({'curve' if curve else 'linear'}) vs ngspice: pull-in {t_model:.6e}/{res['tpull']:.6e} s, "
-          f"terminal zero {t_zero:.6e}/{res['tzero'] - t_on:.6e} s, drop-out (flux) "
+          f"terminal below {I_LOW} A {t_low:.6e}/{res['tzero'] - t_on:.6e} s, drop-out (flux) "
           f"{t_drop:.6e}/{res['tdrop'] - t_on:.6e} s")
     # ngspice: the magnetising current reaches the pull-in current, 1 % plus one step
     assert abs(res["tpull"] - t_model) <= 0.01 * t_model + step, (t_model, res["tpull"])
