@@ -3,8 +3,8 @@
 While the armature has not started to move, a switched-on coil is a fixed RL circuit:
 ``i(t) = V / R_loop * (1 - exp(-(t - t0) R_loop / L))`` (the textbook RL step response),
 with ``R_loop = R_coil + R_switch + R_sense`` (switch on-resistance and sense resistor
-from the board file; the sense resistor is in the loop while the switch is on wherever
-it sits). The fit is a least-squares fit of ``R_loop``, ``L`` and the switch-on moment
+from the board file, a full bridge's two switches Q1 + Q4; the sense resistor is in the
+loop while the switch is on wherever it sits). The fit is a least-squares fit of ``R_loop``, ``L`` and the switch-on moment
 ``t0`` to the samples of the rise (``scipy.optimize.least_squares``, trust-region
 reflective), actuation by actuation; the coil's figures are the medians over the
 actuations and their spread is reported.
@@ -40,6 +40,7 @@ import numpy as np
 from ..config import Board
 from ..errors import InputError
 from ..model.circuit import COPPER_ALPHA
+from ..model.topology import topology_named
 from ..units import format_si
 from .analysis import Analysis, analyse
 from .capture_file import Capture
@@ -75,7 +76,8 @@ class CoilFit:
 
     ``resistance_ohm`` is the coil alone (the loop less the board's switch and sense
     resistances) at ``coil_temp_c`` (the ``[coil]`` section states it with
-    ``reference_temp`` = ``coil_temp_c``). Spreads are the relative half-ranges over the
+    ``reference_temp`` = ``coil_temp_c``); ``switch_resistance_ohm`` is the switches' in
+    the drive path (a full bridge's two). Spreads are the relative half-ranges over the
     actuations.
     """
 
@@ -202,6 +204,12 @@ def coil_temperature(coil_temp: float | None) -> tuple[float, str | None]:
                   f"(copper changes {COPPER_ALPHA:.2%} per K, IEC 60028)")
 
 
+def drive_switch_resistance(board: Board) -> float:
+    """The switches' on-resistance (ohm) in the switched-on loop: one switch's, or a full
+    bridge's two (Q1 + Q4)."""
+    return board.switch.on_resistance * topology_named(board.switch.topology).drive_switches
+
+
 def fit_capture(capture: Capture, board: Board, supply: float, coil_temp: float | None = None,
                 analysis: Analysis | None = None, motion_fraction: float = MOTION_FRACTION) -> CoilFit:
     """Fit R and L of the coil from every actuation of ``capture`` (see the module docstring).
@@ -273,7 +281,7 @@ def fit_capture(capture: Capture, board: Board, supply: float, coil_temp: float 
     inds = np.array([f.inductance_h for f in fits])
     r_loop = float(np.median(r_loops))
     ind = float(np.median(inds))
-    r_sw = board.switch.on_resistance
+    r_sw = drive_switch_resistance(board)
     r_sense = board.sense.resistance
     r_coil = r_loop - r_sw - r_sense
     if r_coil <= 0:

@@ -126,7 +126,7 @@ def fit_flux(capture: Capture, board: Board, supply: float, coil_temp: float | N
     ``resistance`` the coil's ohm at that temperature (``None``: from the settled
     current at the end of each peak).
     """
-    from .fit import coil_temperature
+    from .fit import coil_temperature, drive_switch_resistance
 
     if not (math.isfinite(supply) and supply > 0):
         raise InputError("--supply", "", f"{supply!r} must be a voltage above zero")
@@ -136,7 +136,7 @@ def fit_flux(capture: Capture, board: Board, supply: float, coil_temp: float | N
     fs, apc = meta.sample_rate_hz, meta.amps_per_code
     if analysis is None:
         analysis = analyse(capture)
-    r_extra = board.switch.on_resistance + board.sense.resistance
+    r_extra = drive_switch_resistance(board) + board.sense.resistance
     rises = []
     notes: list[str] = []
     idx = capture.index

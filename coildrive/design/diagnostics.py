@@ -28,6 +28,7 @@ import numpy as np
 from ..config import Drive
 from ..model import eddy
 from ..model.eddy import EddyCoil
+from ..model.circuit import open_inductance
 from ..model.flux import FluxCoil
 from ..model.rl import rise_time
 from .corners import CornerGrid
@@ -69,7 +70,10 @@ def rise_check(drive: Drive, grid: CornerGrid, res: PointResults, conversion_hz:
     ind = base_l * np.broadcast_to(np.asarray(res.l_factor, float), v.shape)
     flux_coil = isinstance(lp.inductance, FluxCoil)
     if flux_coil:   # a saturating coil rises through its curve (faster as it saturates)
-        ind = lp.inductance.with_scale(np.broadcast_to(np.asarray(lp.inductance.scale, float), v.shape))
+        rising = lp.inductance   # with [armature] and two curves: the open one
+        if drive.armature is not None:
+            rising = open_inductance(drive, res.l_factor)
+        ind = rising.with_scale(np.broadcast_to(np.asarray(rising.scale, float), v.shape))
     weakest = float(np.min(v / r))
     code = math.floor(RISE_FRACTION * weakest * low / lsb_a)
     by_supply = board.supply_sense is not None
@@ -155,6 +159,8 @@ def seat_check(drive: Drive, grid: CornerGrid, res: PointResults) -> SeatCheck |
     lp = res.loop
     v = np.asarray(lp.v_on, float)
     ind = drive.armature.inductance_closed * np.broadcast_to(np.asarray(res.l_factor, float), v.shape)
+    if isinstance(lp.inductance, FluxCoil):   # the coil's seated curve (with two curves)
+        ind = lp.inductance.with_scale(np.broadcast_to(np.asarray(lp.inductance.scale, float), v.shape))
     i_dip = np.asarray(pin.dip_current, float)
     seated = np.isfinite(i_dip)
     with np.errstate(invalid="ignore", divide="ignore"):

@@ -64,12 +64,20 @@ def _topology_rows(d: Design) -> list:
         return []
     b = t.bridge
     if b is not None:
+        if b.hold_decay == "mixed":
+            hold = (f"mixed decay ({b.hold_fast_fraction:.0%} of each off-time fast, the rest slow "
+                    "through two low-side switches)")
+            period = (f"per hold period {b.returned_per_hold_period_j * 1e6:.4g} uJ "
+                      f"({b.hold_period_corner})")
+        else:
+            hold = "slow decay (two low-side switches)"
+            period = f"per hold period {b.returned_per_hold_period_j:g} J (slow decay)"
         rows = [("switch topology", "full bridge",
-                 f"sense {t.sense_place}; hold: slow decay (two low-side switches), release: fast "
+                 f"sense {t.sense_place}; hold: {hold}, release: fast "
                  "decay (body diodes into the supply)"),
                 ("energy back to the supply", f"{b.returned_per_release_j * 1e3:.4g} mJ",
                  f"per release ({b.release_corner}); up to {b.returned_worst_j * 1e3:.4g} mJ at the "
-                 f"{b.worst_event}; per hold period {b.returned_per_hold_period_j:g} J (slow decay)")]
+                 f"{b.worst_event}; {period}")]
         if not b.sink:
             rows.append(("bus pump-up", f"+{b.pump_up_v:.4g} V",
                          f"to {b.pumped_bus_v:.4g} V on {b.capacitance_f * 1e6:.4g} uF ({b.pump_event}, "

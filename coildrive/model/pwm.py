@@ -11,6 +11,18 @@ with ``A = V/R_on`` and ``B = V_off/R_off``. Where that gives ``i_min < 0`` the 
 blocks: the current reaches zero during the off time and stays there (discontinuous
 conduction, DCM), and every period starts from zero. Mean and RMS follow from the exact
 segment integrals — no time stepping.
+
+Mixed decay (a full bridge, :class:`MixedDecay`): each off-time starts with a fraction
+``m`` in the fast path (all four switches off, the current into the bus through two body
+diodes, ``L di/dt = -(R_f i + V_f)``, ``V_f = V_bus + 2 V_d``) and ends in the slow path
+(``L di/dt = -R_s i``), three exponential segments a period. With ``e_f = exp(-m (1-D)
+T R_f / L)``, ``e_s = exp(-(1-m) (1-D) T R_s / L)`` and ``F = V_f / R_f`` the continuous
+fixed point is::
+
+    i_min = ((A (1 - e_on) + F) e_f - F) e_s / (1 - e_on e_f e_s)
+
+and where that gives ``i_min <= 0`` the current dies in the fast part (the body diodes
+block) and every period starts from zero. ``m = 0`` is the plain two-segment orbit.
 """
 
 from __future__ import annotations
@@ -57,9 +69,74 @@ class PwmSteadyState:
     terminal_min: np.ndarray | None = None
     terminal_max: np.ndarray | None = None
     eddy_energy: np.ndarray | None = None
+    charge_fast: np.ndarray | float = 0.0
+    square_fast: np.ndarray | float = 0.0
 
 
-def pwm_steady_state(duty, frequency, v_on, r_on, r_off, v_off, inductance) -> PwmSteadyState:
+@dataclass(frozen=True)
+class MixedDecay:
+    """A full bridge's mixed decay in the hold: the first ``fraction`` (0..1) of each
+    off-time through the fast path ``L di/dt = -(r_fast i + v_fast)`` (ohm, V: the coil and
+    sense resistor, the bus plus two body diodes), the rest through the loop's slow path.
+    Arrays broadcast with the loop's."""
+
+    fraction: float
+    r_fast: np.ndarray
+    v_fast: np.ndarray
+
+    def at(self, k) -> "MixedDecay":
+        """The same at the points ``k`` of the flattened arrays (``shape``: their shape)."""
+        return MixedDecay(self.fraction, self.r_fast[k], self.v_fast[k])
+
+    def flat(self, shape) -> "MixedDecay":
+        """The arrays broadcast to ``shape`` and flattened."""
+        return MixedDecay(self.fraction, *(np.array(np.broadcast_to(np.asarray(x, float), shape),
+                                                    dtype=float).ravel()
+                                           for x in (self.r_fast, self.v_fast)))
+
+
+def mixed_steady_state(duty, frequency, v_on, r_on, r_off, inductance,
+                       mixed: MixedDecay) -> PwmSteadyState:
+    """Steady state of a mixed-decay hold: on for ``duty`` of the period, then
+    ``mixed.fraction`` of the off-time in the fast path and the rest in the slow one
+    (``r_off`` ohm, no opposing voltage). Closed form (module docstring); the fast
+    segment's integrals are ``charge_fast``/``square_fast`` (A*s, A^2*s), and
+    ``charge_off``/``square_off`` hold both off segments. ``conduction_off`` is the time
+    the current flows in the off-time (s)."""
+    duty, frequency, v_on, r_on, r_off, ind, r_f, v_f = np.broadcast_arrays(
+        *(np.asarray(x, float) for x in (duty, frequency, v_on, r_on, r_off, inductance,
+                                         mixed.r_fast, mixed.v_fast)))
+    period = 1.0 / frequency
+    t_on = duty * period
+    t_fast = mixed.fraction * (period - t_on)
+    t_slow = period - t_on - t_fast
+    a = v_on / r_on
+    f = v_f / r_f
+    e_on = np.exp(-t_on * r_on / ind)
+    e_f = np.exp(-t_fast * r_f / ind)
+    e_s = np.exp(-t_slow * r_off / ind)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        i_ccm = ((a * (1.0 - e_on) + f) * e_f - f) * e_s / (1.0 - e_on * e_f * e_s)
+    dcm = ~(i_ccm > 0.0)
+    i_min = np.where(dcm, 0.0, i_ccm)
+    i_max = a + (i_min - a) * e_on
+    fast_zero = decay_time(0.0, i_max, r_f, v_f, ind)
+    t_f = np.where(dcm, np.minimum(fast_zero, t_fast), t_fast)
+    i_f = np.where(dcm, 0.0, (i_max + f) * e_f - f)
+    t_s = np.where(dcm, 0.0, t_slow)
+    q_on, s_on = rise_integrals(t_on, i_min, v_on, r_on, ind)
+    q_f, s_f = decay_integrals(t_f, i_max, r_f, v_f, ind)
+    q_s, s_s = decay_integrals(t_s, i_f, r_off, 0.0, ind)
+    mean = (q_on + q_f + q_s) / period
+    rms = np.sqrt(np.maximum((s_on + s_f + s_s) / period, 0.0))
+    return PwmSteadyState(i_min=i_min, i_max=i_max, mean=mean, rms=rms, ripple=i_max - i_min,
+                          dcm=dcm, conduction_off=t_f + t_s, period=period, charge_on=q_on,
+                          square_on=s_on, charge_off=q_f + q_s, square_off=s_f + s_s,
+                          charge_fast=q_f, square_fast=s_f)
+
+
+def pwm_steady_state(duty, frequency, v_on, r_on, r_off, v_off, inductance,
+                     mixed: MixedDecay | None = None) -> PwmSteadyState:
     """Steady state of voltage-mode PWM at ``duty`` (0..1) and ``frequency`` Hz.
 
     Parameters
@@ -72,9 +149,13 @@ def pwm_steady_state(duty, frequency, v_on, r_on, r_off, v_off, inductance) -> P
     v_off : constant voltage opposing the current while freewheeling, V (> 0)
     inductance : H, or a :class:`~coildrive.model.flux.FluxCoil` (a saturating coil: its
         exact periodic orbit, :func:`coildrive.model.flux.orbit`)
+    mixed : a full bridge's mixed decay (:func:`mixed_steady_state`; ``v_off`` is then
+        unused, the slow path has none), or ``None``
     """
     if isinstance(inductance, EddyCoil):
         return _eddy_steady_state(duty, frequency, v_on, r_on, r_off, v_off, inductance)
+    if mixed is not None and mixed.fraction > 0:
+        return mixed_steady_state(duty, frequency, v_on, r_on, r_off, inductance, mixed)
     if isinstance(inductance, FluxCoil):
         return _flux_steady_state(duty, frequency, v_on, r_on, r_off, v_off, inductance)
     duty, frequency, v_on, r_on, r_off, v_off, inductance = np.broadcast_arrays(
@@ -176,7 +257,7 @@ DUTY_TOL = 1e-13
 
 
 def duty_for_mean(target, frequency, v_on, r_on, r_off, v_off, inductance, iterations: int = 60,
-                  start=None):
+                  start=None, mixed: MixedDecay | None = None):
     """Smallest duty whose steady-state mean current reaches ``target`` A, per point.
 
     The mean current rises monotonically with duty. Each point starts from the
@@ -192,18 +273,21 @@ def duty_for_mean(target, frequency, v_on, r_on, r_off, v_off, inductance, itera
     five evaluations instead of 44. ``nan`` where even 100 % duty falls short;
     ``iterations`` bounds the steps (the rest is finished by bisection); ``start``
     (optional, broadcast like the others) replaces the first estimate, e.g. the duty of a
-    nearby point.
+    nearby point; ``mixed``: a full bridge's mixed decay (:class:`MixedDecay`).
     """
     inductance, coil = _points(inductance)
+    extra = () if mixed is None else (mixed.r_fast, mixed.v_fast)
     arrays = np.broadcast_arrays(*(np.asarray(x, float) for x in
-                                   (target, frequency, v_on, r_on, r_off, v_off, inductance)))
+                                   (target, frequency, v_on, r_on, r_off, v_off, inductance, *extra)))
+    arrays = arrays[:7]
     shape = arrays[0].shape
     tgt, f, v, ron, roff, voff, ind = (np.array(a, dtype=float).ravel() for a in arrays)
     ind = coil(ind)
+    mix = None if mixed is None or not mixed.fraction > 0 else mixed.flat(shape)
     if start is not None:
         start = np.array(np.broadcast_to(np.asarray(start, float), shape), dtype=float).ravel()
     out = np.full(tgt.size, np.nan)
-    full = pwm_steady_state(1.0, f, v, ron, roff, voff, ind).mean
+    full = pwm_steady_state(1.0, f, v, ron, roff, voff, ind, mix).mean
     reach = full >= tgt
     out[reach & (tgt <= 0)] = 0.0
     act = np.flatnonzero(reach & (tgt > 0))
@@ -211,7 +295,8 @@ def duty_for_mean(target, frequency, v_on, r_on, r_off, v_off, inductance, itera
         return out.reshape(shape)
 
     def mean_minus(x, k):
-        return pwm_steady_state(x, f[k], v[k], ron[k], roff[k], voff[k], ind[k]).mean - tgt[k]
+        return pwm_steady_state(x, f[k], v[k], ron[k], roff[k], voff[k], ind[k],
+                                None if mix is None else mix.at(k)).mean - tgt[k]
 
     k = act
     lo = np.zeros(k.size)
