@@ -245,19 +245,89 @@ def bench_flux_design(runs: int = 5) -> None:
         linear = Path(tmp) / "linear.toml"
         linear.write_text(text.replace('reference_temp = "20 degC"',
                                        'reference_temp = "20 degC"\ninductance = "121.2 mH"'))
-        cmds = {"linear": [sys.executable, "-m", "coildrive", "design", str(linear), "--json"],
-                "curve": [sys.executable, "-m", "coildrive", "design", str(sat), "--json"]}
-        cpu, wall = _paired(cmds, runs, env)
+        _design_pair("a flux-linkage curve", linear, sat, "the linear coil", runs, env)
+
+
+def _design_pair(what: str, linear: Path, curve: Path, base: str, runs: int, env: dict) -> None:
+    """``coildrive design --json`` of ``linear`` and ``curve``, paired: median CPU and wall
+    of each, printed against the 2 s target."""
+    cmds = {"linear": [sys.executable, "-m", "coildrive", "design", str(linear), "--json"],
+            "curve": [sys.executable, "-m", "coildrive", "design", str(curve), "--json"]}
+    cpu, wall = _paired(cmds, runs, env)
     for name, data in (("CPU", cpu), ("wall", wall)):
         lin, cur = statistics.median(data["linear"]), statistics.median(data["curve"])
-        print(f"design with a flux-linkage curve ({name}, median of {runs} paired): {cur:.3f} s "
-              f"(target < 2 s) vs the linear coil {lin:.3f} s: ratio {cur / lin:.2f}")
+        print(f"design with {what} ({name}, median of {runs} paired): {cur:.3f} s "
+              f"(target < 2 s) vs {base} {lin:.3f} s: ratio {cur / lin:.2f}")
+
+
+def bench_armature_curves_design(runs: int = 5) -> None:
+    """``coildrive design`` of the locker-latch example (linear ``L(x)``) against the same
+    file with a saturating coil's open and seated curves (invented: the iron
+    ``i = psi / 90 mH + 6.43e5 psi^5`` seated, plus the 4 mm gap's linear part open, and
+    the example's derived hold and drop-out currents written out), paired: median CPU and
+    wall against the 2 s target."""
+    import tempfile
+
+    import numpy as np
+
+    env = {**os.environ, "PYTHONPATH": str(ROOT)}
+    latch = ROOT / "examples" / "locker-latch-12v.toml"
+    psi = np.linspace(0.0, 0.1, 11)
+    seated = psi / 0.090 + 6.43e5 * psi**5
+    opened = seated + psi * (1 / 0.025 - 1 / 0.090)
+
+    def row(values):
+        return ", ".join(f"{x:.9g}" for x in values)
+
+    lines = [ln for ln in latch.read_text().splitlines()
+             if not ln.startswith(("inductance =", "inductance_open", "inductance_closed"))]
+    text = "\n".join(lines).replace("[coil]", f"[coil]\nflux_current = [{row(opened)}]\n"
+                                     f"flux_linkage = [{row(psi)}]\nseated_current = [{row(seated)}]\n"
+                                     f"seated_linkage = [{row(psi)}]", 1)
+    text = text.replace("\n[hold]", '\n[hold]\ncurrent = "0.3 A"', 1).replace(
+        "\n[armature]", '\n[release]\ncurrent = "0.15 A"\n\n[armature]', 1)
+    with tempfile.TemporaryDirectory() as tmp:
+        curves = Path(tmp) / "latch-curves.toml"
+        curves.write_text(text + "\n")
+        _design_pair("[armature] and two flux-linkage curves", latch, curves, "the linear L(x)",
+                     runs, env)
+
+
+def bench_eddy_design(runs: int = 5) -> None:
+    """``coildrive design`` with an eddy-current term (``eddy_resistance = 300 ohm``) against
+    the same file without it, paired, for the saturating example (the orbit's Newton
+    solves) and a linear one (closed forms): median CPU and wall against the 2 s target."""
+    import tempfile
+
+    env = {**os.environ, "PYTHONPATH": str(ROOT)}
+    with tempfile.TemporaryDirectory() as tmp:
+        for name in ("saturating-valve-24v", "reagent-valve-zener-24v"):
+            src = ROOT / "examples" / f"{name}.toml"
+            text = src.read_text()
+            board = text.split('board = "')[1].split('"')[0]
+            text = text.replace(f'board = "{board}"', f'board = "{ROOT / "boards" / board}.toml"')
+            plain, eddy = Path(tmp) / f"{name}.toml", Path(tmp) / f"{name}-eddy.toml"
+            plain.write_text(text)
+            eddy.write_text(text.replace("inductance_tolerance = 0.15",
+                                         'inductance_tolerance = 0.15\neddy_resistance = "300 ohm"'))
+            cmds = {"plain": [sys.executable, "-m", "coildrive", "design", str(plain), "--json"],
+                    "eddy": [sys.executable, "-m", "coildrive", "design", str(eddy), "--json"]}
+            cpu, wall = _paired(cmds, runs, env)
+            for what, data in (("CPU", cpu), ("wall", wall)):
+                a, b = statistics.median(data["plain"]), statistics.median(data["eddy"])
+                print(f"design of {name} with an eddy term ({what}, median of {runs} paired): "
+                      f"{b:.3f} s (target < 2 s) vs without {a:.3f} s: ratio {b / a:.2f}")
 
 
 def main() -> None:
     os.environ.setdefault("OMP_NUM_THREADS", "1")
     if "flux" in sys.argv:
         bench_flux_design()
+        return
+    if "eddy" in sys.argv:
+        bench_eddy_design()
+    if "armflux" in sys.argv:
+        bench_armature_curves_design()
         return
     drive = load_drive(ROOT / "examples" / "demo-valve.toml")
     bench_corners(drive)

@@ -33,7 +33,7 @@ SENSE_POSITIONS = ("coil", "switch")
 #: around it (``full_bridge``: slow decay in the hold, fast decay into the supply at the
 #: release).
 TOPOLOGIES = ("low_side", "high_side", "full_bridge")
-HOLD_MODES = ("voltage", "current")
+HOLD_MODES = ("voltage", "current", "latch")
 CURRENT_CONTROLS = ("hysteretic", "off_time")
 _CURRENT_MODE_KEYS = ("control", "band", "off_time", "min_frequency", "max_frequency", "sense_delay")
 DISTRIBUTIONS = ("uniform", "normal")
@@ -91,6 +91,10 @@ BOUNDS: dict[str, tuple[float, float, str]] = {
     "coil.release_time": (1e-6, 10.0, "time"),
     "coil.flux_current": (0.0, 1000.0, "current"),
     "coil.flux_linkage": (0.0, 1000.0, "flux_linkage"),
+    "coil.eddy_resistance": (1e-3, 1e9, "resistance"),
+    "coil.eddy_time_constant": (1e-9, 1.0, "time"),
+    "coil.seated_current": (0.0, 1000.0, "current"),
+    "coil.seated_linkage": (0.0, 1000.0, "flux_linkage"),
     "supply.min": (0.5, 1000.0, "voltage"),
     "supply.nominal": (0.5, 1000.0, "voltage"),
     "supply.max": (0.5, 1000.0, "voltage"),
@@ -124,6 +128,13 @@ BOUNDS: dict[str, tuple[float, float, str]] = {
     "hold.max_frequency": (1.0, 5e6, "frequency"),
     "hold.sense_delay": (0.0, 10e-3, "time"),
     "release.current": (1e-6, 1000.0, "current"),
+    "reset.current": (1e-6, 1000.0, "current"),
+    "reset.margin": (1.0, 10.0, "dimensionless"),
+    "reset.current_margin": (1.0, 3.0, "dimensionless"),
+    "reset.settle_time": (0.0, 10.0, "time"),
+    "reset_coil.resistance": (1e-3, 100e3, "resistance"),
+    "reset_coil.reference_temp": (-75.0, 250.0, "temperature"),
+    "reset_coil.inductance": (1e-6, 100.0, "inductance"),
     "armature.inductance_open": (1e-6, 100.0, "inductance"),
     "armature.inductance_closed": (1e-6, 100.0, "inductance"),
     "armature.stroke": (1e-6, 0.1, "length"),
@@ -221,6 +232,13 @@ class Coil:
     (Wb) tabulate its flux linkage against current, from (0, 0), both rising; empty for
     the linear coil. With a curve, ``inductance`` is the slope of its first segment
     (the small-signal value, for reports) and the tolerance scales the whole curve.
+    With ``[armature]`` that curve is the open one (armature blocked open) and
+    ``seated_current`` (A) / ``seated_linkage`` (Wb) tabulate the seated coil's.
+
+    Eddy currents (docs/coil-model.md): ``eddy_resistance`` (ohm) across the magnetising
+    branch, given as such or as ``eddy_time_constant`` (s, ``L / R_e`` with ``inductance``,
+    the small-signal value); 0 = none. ``eddy_time_constant`` keeps the given time
+    constant (0 when the resistance was given), for reports and the input hash.
     """
 
     resistance: float
@@ -238,6 +256,10 @@ class Coil:
     release_time: float = 0.0
     flux_current: tuple[float, ...] = ()
     flux_linkage: tuple[float, ...] = ()
+    eddy_resistance: float = 0.0
+    eddy_time_constant: float = 0.0
+    seated_current: tuple[float, ...] = ()
+    seated_linkage: tuple[float, ...] = ()
 
     @property
     def derived(self) -> tuple[str, ...]:
@@ -382,6 +404,7 @@ class Hold:
     max_frequency: float = 0.0
     sense_delay: float = 0.0
     regulation: str = "supply_table"
+    fast_fraction: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -402,6 +425,12 @@ class Armature:
     file leaves ``pull_in.current`` or ``hold.current`` out (see docs/armature.md);
     ``derived`` names the keys so filled in (``"pull_in.current"``, ``"hold.current"``,
     ``"release.current"``).
+
+    With a saturating coil (``coil.flux_current`` and ``coil.seated_current``, see
+    docs/coil-model.md) ``open_current``/``open_linkage`` and
+    ``seated_current``/``seated_linkage`` are those two curves (A, Wb), and the two
+    inductances are their first segments' slopes (small-signal, for reports and time
+    scales); empty for the linear ``L(x)``.
     """
 
     inductance_open: float
@@ -415,6 +444,10 @@ class Armature:
     restitution: float = 0.0
     current_margin: float = 1.25
     derived: tuple[str, ...] = ()
+    open_current: tuple[float, ...] = ()
+    open_linkage: tuple[float, ...] = ()
+    seated_current: tuple[float, ...] = ()
+    seated_linkage: tuple[float, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -558,6 +591,25 @@ class Tick:
 
 
 @dataclass(frozen=True)
+class Channels:
+    """A board with several drive channels (``[channels]``): ``count`` channels numbered
+    1..count; ``timers`` lists the groups of channels that share one PWM timer (one
+    prescaler and period, a compare per channel), ``supplies`` the groups that share one
+    supply rail, ``freewheels`` the groups whose freewheel element is one shared part
+    (e.g. one Zener for a common return). A channel in no group has its own."""
+
+    count: int
+    timers: tuple[tuple[int, ...], ...] = ()
+    supplies: tuple[tuple[int, ...], ...] = ()
+    freewheels: tuple[tuple[int, ...], ...] = ()
+
+    def group(self, kind: str, number: int) -> tuple[int, ...]:
+        """The channels that share ``kind`` (``"timers"``, ``"supplies"``, ``"freewheels"``)
+        with channel ``number`` (itself alone when it is in no group)."""
+        return next((g for g in getattr(self, kind) if number in g), (number,))
+
+
+@dataclass(frozen=True)
 class Board:
     """A driver board profile."""
 
@@ -575,6 +627,26 @@ class Board:
     ram: int = 0          # bytes of RAM on the part, 0 = not given
     flash: int = 0        # bytes of program flash, 0 = not given
     core: str = ""        # the processor core (BOARD_CORES), "" = not given
+    channels: Channels | None = None   # several drive channels (system files), None = one
+
+
+@dataclass(frozen=True)
+class Latch:
+    """A latching (bistable) coil (``[hold] mode = "latch"``): no hold, a set pulse sized
+    from ``[pull_in]`` and a reset pulse sized from ``[reset]`` the same way (``current``
+    A to unlatch, ``margin`` on the worst reset time, ``current_margin`` on that current
+    at the shortest real pulse, ``settle_time`` s after it). ``reset_coil`` is the reset
+    winding (``[reset_coil]``, on a second low- or high-side switch) or ``None`` (a full
+    bridge reverses the one coil). ``recharge_tolerance`` (a fraction): pulses from a
+    capacitor (``supply.source_resistance``) are designed from a bus this much below the
+    supply, and the next pulse waits until the capacitor is back there."""
+
+    reset_current: float
+    reset_margin: float
+    reset_current_margin: float
+    reset_settle_time: float
+    reset_coil: Coil | None
+    recharge_tolerance: float
 
 
 @dataclass(frozen=True)
@@ -599,6 +671,10 @@ class Drive:
     armature: Armature | None = None
     source: str = ""
     duty: Duty | None = None
+    #: ``(prescaler, period counts)`` of a timer shared with other channels (a system
+    #: file's, :mod:`coildrive.design.system`); None: solved for ``hold.frequency``.
+    shared_timer: tuple[int, int] | None = None
+    latch: Latch | None = None
 
     def input_hash(self) -> str:
         """SHA-256 (first 16 hex digits) of the parsed inputs as canonical JSON.
@@ -610,6 +686,8 @@ class Drive:
         data["board"].pop("source", None)
         if data.get("duty") is None:   # added later: a file without [duty] keeps its hash
             data.pop("duty", None)
+        if data.get("latch") is None:  # likewise a drive that is not a latching coil
+            data.pop("latch", None)
         # the board's core picks only the timing figures firmware-driver prints; no design
         # figure reads it, so it leaves the hash (and every design output) as it was
         data["board"].pop("core", None)
@@ -621,8 +699,11 @@ class Drive:
 #: Keys added after the first release: left out of the input hash while they hold their
 #: default, so that files which do not use them keep their hash (and headers their bytes).
 _LATER_FIELDS = (
-    (("coil",), Coil, _DATASHEET_KEYS + ("stated_temp", "flux_current", "flux_linkage")),
-    (("hold",), Hold, _CURRENT_MODE_KEYS + ("regulation",)),
+    (("coil",), Coil, _DATASHEET_KEYS + ("stated_temp", "flux_current", "flux_linkage",
+                                         "seated_current", "seated_linkage",
+                                         "eddy_resistance", "eddy_time_constant")),
+    (("armature",), Armature, ("open_current", "open_linkage", "seated_current", "seated_linkage")),
+    (("hold",), Hold, _CURRENT_MODE_KEYS + ("regulation", "fast_fraction")),
     (("thermal",), Thermal, ("capacity",)),
     (("pull_in",), PullIn, ("current_margin", "settle_time", "compensate")),
     (("supply",), Supply, ("sink", "capacitance", "capacitor_voltage", "source_resistance", "boost",
@@ -636,7 +717,8 @@ _LATER_FIELDS = (
     (("freewheel",), Freewheel, _FREEWHEEL_LATER),
     (("board", "freewheel"), Freewheel, _FREEWHEEL_LATER),
     (("board", "timer"), Timer, ("max_pwm_frequency",)),
-    (("board",), Board, ("ram", "flash")),
+    (("board",), Board, ("ram", "flash", "channels")),
+    ((), Drive, ("shared_timer",)),
 )
 
 
@@ -913,10 +995,21 @@ def _read_duty(s: _Section) -> Duty:
     return Duty(on, off)
 
 
-def _read_armature(s: _Section) -> Armature:
+def _read_armature(s: _Section, curve: str | None = None) -> Armature:
+    """``[armature]``; ``curve`` names the coil's flux-curve key when the file has one
+    (the two inductances then come from the curves: giving them too is an error)."""
+    if curve is not None:
+        for key in ("inductance_open", "inductance_closed"):
+            if key in s.table:
+                src, full = s.where(key)
+                raise InputError(src, f"{full} and coil.{curve}", "both give the armature's "
+                                 "inductance (the curves' slopes); keep the curves, leave the "
+                                 "inductances out")
     arm = Armature(
-        inductance_open=s.quantity("inductance_open", "inductance", positive=True),
-        inductance_closed=s.quantity("inductance_closed", "inductance", positive=True),
+        # with the curves: their first slopes, filled in once the coil is read
+        inductance_open=0.0 if curve else s.quantity("inductance_open", "inductance", positive=True),
+        inductance_closed=0.0 if curve else s.quantity("inductance_closed", "inductance",
+                                                       positive=True),
         stroke=s.quantity("stroke", "length", positive=True),
         mass=s.quantity("mass", "mass", positive=True),
         spring_preload=s.quantity("spring_preload", "force", nonnegative=True),
@@ -926,7 +1019,7 @@ def _read_armature(s: _Section) -> Armature:
         restitution=s.fraction("restitution", 0.0),
         current_margin=s.quantity("current_margin", "dimensionless", 1.25),
     )
-    if arm.inductance_closed < arm.inductance_open:
+    if curve is None and arm.inductance_closed < arm.inductance_open:
         raise s.fail("inductance_closed", "is below inductance_open, expected the closed "
                      "(seated) inductance to be the larger")
     if not arm.spring_preload + arm.load_force > 0:
@@ -1012,6 +1105,14 @@ def _read_coil(s: _Section, armature: Armature | None) -> tuple[Coil, dict[str, 
                              f"outside {bounds_text(section + '.current')}")
             sheet[section] = value
     table = _read_flux_curve(s, armature)
+    eddy = [k for k in ("eddy_resistance", "eddy_time_constant") if k in s.table]
+    if len(eddy) == 2:
+        raise _both(s, "eddy_resistance", "eddy_time_constant", "the eddy-current term "
+                    "(eddy_time_constant = inductance / eddy_resistance)")
+    if eddy and armature is not None:
+        raise s.fail(eddy[0], "an eddy-current term with [armature] is not supported yet: leave "
+                     "it out, or leave out [armature]")
+    seated = _read_seated_curve(s, armature, table)
     coil = Coil(
         resistance=resistance,
         reference_temp=reference_temp,
@@ -1025,7 +1126,15 @@ def _read_coil(s: _Section, armature: Armature | None) -> tuple[Coil, dict[str, 
         drop_out_voltage=drop_out, stated_temp=stated,
         operate_time=optional("operate_time", "time"), release_time=optional("release_time", "time"),
         flux_current=table[0] if table else (), flux_linkage=table[1] if table else (),
+        seated_current=seated[0] if seated else (), seated_linkage=seated[1] if seated else (),
     )
+    if eddy:
+        tau = optional("eddy_time_constant", "time")
+        r_e = coil.inductance / tau if tau else optional("eddy_resistance", "resistance")
+        if not _in_bounds(r_e, "coil.eddy_resistance"):
+            raise s.fail(eddy[0], f"gives an eddy resistance of {r_e:g} ohm (inductance / "
+                         f"eddy_time_constant), outside {bounds_text('coil.eddy_resistance')}")
+        coil = dataclasses.replace(coil, eddy_resistance=r_e, eddy_time_constant=tau)
     s.finish()
     return coil, sheet
 
@@ -1041,14 +1150,59 @@ def _read_flux_curve(s: _Section, armature: Armature | None):
         return None
     if "inductance" in s.table:
         raise _both(s, "inductance", keys[0], "the coil's inductance (the curve's slope)")
-    if armature is not None:
-        raise s.fail(keys[0], "a flux-linkage curve with [armature] is not supported yet: give "
-                     "coil.inductance (or armature.inductance_open/closed) instead")
-    for key, other in (("flux_current", "flux_linkage"), ("flux_linkage", "flux_current")):
+    return _read_table(s, "flux_current", "flux_linkage")
+
+
+def _read_seated_curve(s: _Section, armature: Armature | None, table):
+    """``seated_current`` and ``seated_linkage`` (A, Wb): the seated coil's curve, needed
+    with ``[armature]`` and a flux-linkage curve, an error anywhere else; ``None`` when
+    there is none. The open curve must lie below it (the gap only adds reluctance)."""
+    keys = [k for k in ("seated_current", "seated_linkage") if k in s.table]
+    if armature is None or table is None:
+        if keys:
+            raise s.fail(keys[0], "is the seated curve of a moving armature's saturating coil: "
+                         "expected [armature] and coil.flux_current/flux_linkage (the open "
+                         "curve) with it, or leave seated_current/seated_linkage out")
+        return None
+    if not keys:
+        raise s.fail("flux_current", "with [armature] is the open (armature blocked open) curve; "
+                     "expected the seated coil's too, as coil.seated_current and "
+                     "coil.seated_linkage (fit --flux-curve --seated prints them)")
+    seated = _read_table(s, "seated_current", "seated_linkage")
+    _check_open_below_seated(s, table, seated)
+    return seated
+
+
+def _check_open_below_seated(s: _Section, open_, seated) -> None:
+    """The open curve's flux at or below the seated one's at every current of both tables
+    and at ten times the larger last one (each table read straight between its points and
+    past its end at its last segment's slope), the first slopes strictly: the closing
+    force then grows with the flux linkage (docs/coil-model.md)."""
+    import numpy as np
+
+    def psi(table, i):
+        x, y = (np.asarray(c, float) for c in table)
+        end = (y[-1] - y[-2]) / (x[-1] - x[-2])
+        return np.where(i <= x[-1], np.interp(i, x, y), y[-1] + end * (i - x[-1]))
+
+    grid = np.union1d(open_[0], seated[0])[1:]
+    grid = np.append(grid, 10.0 * grid[-1])
+    gap = psi(seated, grid) - psi(open_, grid)
+    first = seated[1][1] / seated[0][1] > open_[1][1] / open_[0][1]
+    if not first or np.any(gap < 0):
+        at = float(grid[int(np.argmin(gap))]) if first else 0.0
+        raise s.fail("seated_linkage", f"lies below the open curve (coil.flux_linkage) near "
+                     f"{at:g} A, expected the seated coil's flux linkage above the open one's at "
+                     "every current (the gap only adds reluctance)")
+
+
+def _read_table(s: _Section, current_key: str, flux_key: str):
+    """A current/flux-linkage table from two keys of ``[coil]``: ``(currents, fluxes)``."""
+    for key, other in ((current_key, flux_key), (flux_key, current_key)):
         if other not in s.table:
             raise s.fail(key, f"needs coil.{other} too (the table's other column)")
     columns = []
-    for key, dimension in (("flux_current", "current"), ("flux_linkage", "flux_linkage")):
+    for key, dimension in ((current_key, "current"), (flux_key, "flux_linkage")):
         raw = s._get(key, _MISSING)
         src, full = s.where(key)
         low, high = FLUX_POINTS
@@ -1062,11 +1216,11 @@ def _read_flux_curve(s: _Section, armature: Armature | None):
                          "monotone: one current for each flux)")
         columns.append(values)
     if len(columns[0]) != len(columns[1]):
-        raise s.fail("flux_linkage", f"has {len(columns[1])} values for the {len(columns[0])} of "
-                     "coil.flux_current, expected one flux per current")
+        raise s.fail(flux_key, f"has {len(columns[1])} values for the {len(columns[0])} of "
+                     f"coil.{current_key}, expected one flux per current")
     slope = columns[1][1] / columns[0][1]
     if not _in_bounds(slope, "coil.inductance"):
-        raise s.fail("flux_linkage", f"starts with a slope of {slope:g} H, outside "
+        raise s.fail(flux_key, f"starts with a slope of {slope:g} H, outside "
                      f"{bounds_text('coil.inductance')}")
     return columns[0], columns[1]
 
@@ -1091,9 +1245,33 @@ def _flux_curve_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel
     if hold.mode == "current":
         raise InputError(source, "hold.mode", "\"current\" with a flux-linkage curve "
                          "(coil.flux_current) is not supported yet: use mode = \"voltage\"")
+
+
+def _eddy_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel, switch: Switch,
+                 thermal: Thermal, duty: "Duty | None", supply: Supply) -> None:
+    """What an eddy-current term does not yet work with: one line naming the key."""
+    if not coil.eddy_resistance:
+        return
+    what = "an eddy-current term (coil.eddy_resistance / eddy_time_constant)"
+    if hold.regulation == "closed_loop":
+        raise InputError(source, "hold.regulation", f"\"closed_loop\" with {what} is not "
+                         "supported yet: use \"fixed\" or \"supply_table\"")
+    if hold.mode == "current":
+        raise InputError(source, "hold.mode", f"\"current\" with {what} is not supported yet: "
+                         "use mode = \"voltage\"")
+    if switch.topology == "full_bridge":
+        raise InputError(source, "switch.topology", f"\"full_bridge\" with {what} is not "
+                         "supported yet")
     if freewheel.split_decay:
-        raise InputError(source, "freewheel.split_decay", "split decay with a flux-linkage curve "
-                         "(coil.flux_current) is not supported yet")
+        raise InputError(source, "freewheel.split_decay", f"split decay with {what} is not "
+                         "supported yet")
+    if duty is not None or thermal.capacity > 0:
+        raise InputError(source, "duty" if duty is not None else "thermal.capacity",
+                         f"an on/off cycle's coil temperature with {what} is not supported yet: "
+                         "leave [duty] and thermal.capacity / time_constant out")
+    if supply.droops:
+        raise InputError(source, "supply.source_resistance", f"a drooping bus with {what} is "
+                         "not supported yet: leave source_resistance out")
 
 
 def _mechanics_currents(arm: Armature, coil: Coil) -> dict[str, float]:
@@ -1163,7 +1341,8 @@ def load_board(path: str | Path) -> Board:
     path = Path(path)
     source = str(path)
     data = _read_toml(path)
-    tables = ("timer", "adc", "sense", "supply_sense", "switch", "freewheel", "link", "tick")
+    tables = ("timer", "adc", "sense", "supply_sense", "switch", "freewheel", "link", "tick",
+              "channels")
     _root_sections(source, data, tables, ("name", "description", "ram", "flash", "core"))
     root = _Section(source, {k: v for k, v in data.items() if not isinstance(v, dict)}, "")
     name = root.text("name")
@@ -1205,8 +1384,39 @@ def load_board(path: str | Path) -> Board:
     tick = Tick(s.quantity("rate", "frequency", positive=True))
     s.finish()
     core = root.choice("core", BOARD_CORES, "") if "core" in root.table else ""
+    channels = _read_channels(_section(source, data, "channels")) if "channels" in data else None
     return Board(name, description, timer, adc, sense, supply_sense, switch, freewheel, link,
-                 tick, source, _memory_size(root, "ram"), _memory_size(root, "flash"), core)
+                 tick, source, _memory_size(root, "ram"), _memory_size(root, "flash"), core,
+                 channels)
+
+
+#: Most channels a board may have.
+MAX_CHANNELS = 64
+
+
+def _read_channels(s: _Section) -> Channels:
+    """``[channels]``: ``count`` and the groups (lists of channel numbers) sharing a timer,
+    a supply rail or a freewheel part; each channel in at most one group of a kind."""
+    count = s.integer("count", low=1, high=MAX_CHANNELS)
+    groups = {}
+    for key in ("timers", "supplies", "freewheels"):
+        raw = s._get(key, [])
+        if not isinstance(raw, list) or not all(isinstance(g, list) and g for g in raw):
+            raise s.fail(key, f"{short_repr(raw)} is not a list of channel lists, expected e.g. "
+                         "[[1, 2, 3], [4, 5]]")
+        seen: set[int] = set()
+        for g in raw:
+            for n in g:
+                if isinstance(n, bool) or not isinstance(n, int) or not 1 <= n <= count:
+                    raise s.fail(key, f"{short_repr(n)} is not a channel number 1..{count} "
+                                 "(channels.count)")
+                if n in seen:
+                    raise s.fail(key, f"channel {n} is in two groups, expected each channel in "
+                                 "at most one")
+                seen.add(n)
+        groups[key] = tuple(tuple(g) for g in raw)
+    s.finish()
+    return Channels(count, **groups)
 
 
 #: The board file's ``core`` values: the cores whose handler timings firmware-driver knows.
@@ -1244,8 +1454,10 @@ def resolve_board(spec: str, relative_to: Path | None = None) -> Path:
 def _open_loop_refusal(hold: Hold, armature: Armature | None) -> tuple[str, str] | None:
     """``(key, what)`` when the hold is not a voltage-mode open-loop one on a still armature
     (what the drooping bus and the boosted peak are modelled with), else ``None``."""
-    if hold.mode != "voltage":
+    if hold.mode == "current":
         return "hold.mode", "a current-mode hold"
+    if hold.mode == "latch":
+        return "hold.mode", "a latching coil"
     if hold.regulation == "closed_loop":
         return "hold.regulation", "a closed-loop hold"
     if armature is not None:
@@ -1269,8 +1481,12 @@ def _check_droop(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     elif freewheel.type == "clamp":
         key, why = "freewheel.type", "a clamp across the switch (the release draws from the bus)"
         source = fw_origins.get("type", source)
-    elif _open_loop_refusal(hold, armature):
-        key, why = _open_loop_refusal(hold, armature)
+    elif hold.mode == "current":
+        key, why = "hold.mode", "a current-mode hold"
+    elif hold.regulation == "closed_loop":
+        key, why = "hold.regulation", "a closed-loop hold"
+    elif armature is not None:
+        key, why = "armature", "a moving armature"
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
                          f"{why}: expected source_resistance left out, or a linear coil, one switch, "
@@ -1346,6 +1562,10 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
     cannot sink the returned energy, the bulk capacitance. (The supply's ``sink`` and
     ``capacitance`` keys mean nothing to the other topologies, which return no energy.)"""
     if switch.topology != "full_bridge":
+        if hold.fast_fraction > 0:
+            raise InputError(source, "hold.fast_fraction", f"{hold.fast_fraction:g} with switch.topology = "
+                             f"{switch.topology!r}: mixed decay needs a full bridge, expected 0 or "
+                             "the key left out")
         return
     if freewheel.type != "diode":
         raise InputError(fw_origins.get("type", source), "freewheel.type",
@@ -1356,7 +1576,7 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
         raise InputError(fw_origins.get("split_decay", source), "freewheel.split_decay",
                          "a full bridge decays slowly in the hold and fast at the release by itself: "
                          "expected split_decay left out")
-    if hold.mode != "voltage":
+    if hold.mode not in ("voltage", "latch"):
         raise InputError(source, "hold.mode", f"{hold.mode!r} with a full bridge: coildrive designs a "
                          "full bridge's hold in voltage mode only, expected mode = \"voltage\"")
     if armature is not None:
@@ -1379,7 +1599,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
     source = str(path)
     data = _read_toml(path)
     tables = ("coil", "supply", "ambient", "thermal", "pull_in", "hold", "release", "armature",
-              "switch", "freewheel", "duty")
+              "switch", "freewheel", "duty", "reset", "reset_coil")
     _root_sections(source, data, tables, ("board",))
     if board is not None:
         try:
@@ -1399,8 +1619,18 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
             raise InputError(source, "board", err.message) from None
     brd = load_board(board_path)
 
-    armature = _read_armature(_section(source, data, "armature")) if "armature" in data else None
+    coil_keys = data.get("coil") if isinstance(data.get("coil"), dict) else {}
+    curve_key = next((k for k in ("flux_current", "flux_linkage") if k in coil_keys), None)
+    armature = (_read_armature(_section(source, data, "armature"), curve_key)
+                if "armature" in data else None)
     coil, sheet = _read_coil(_section(source, data, "coil"), armature)
+    if armature is not None and coil.seated_current:
+        # the armature's two inductances: the curves' first slopes (small-signal)
+        armature = dataclasses.replace(
+            armature, inductance_open=coil.flux_linkage[1] / coil.flux_current[1],
+            inductance_closed=coil.seated_linkage[1] / coil.seated_current[1],
+            open_current=coil.flux_current, open_linkage=coil.flux_linkage,
+            seated_current=coil.seated_current, seated_linkage=coil.seated_linkage)
     s = _section(source, data, "supply")
     supply = Supply(s.quantity("min", "voltage", positive=True),
                     s.quantity("nominal", "voltage", positive=True),
@@ -1435,7 +1665,8 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
     s.finish()
     duty = _read_duty(_section(source, data, "duty")) if "duty" in data else None
     # With [armature], the currents the file leaves out come from the force balance.
-    need = _mechanics_currents(armature, coil) if armature is not None else None
+    need = (None if armature is None else {} if armature.seated_current else
+            _mechanics_currents(armature, coil))
     derived: list[str] = []
 
     def current(sec_: _Section, key: str, mech: float | None) -> float:
@@ -1447,6 +1678,10 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
             return sheet[sec_.name]
         if need is None or key in sec_.table:
             return sec_.quantity(key, "current", positive=True)
+        if armature.seated_current:
+            raise sec_.fail(key, "missing: with the coil's two curves (coil.seated_current) the "
+                            "force-balance currents are not filled in; give a value (design "
+                            "shows the mechanics' own)")
         sec_.used.add(key)
         if not mech > 0:
             raise sec_.fail(key, "missing, and the mechanics need none (spring + load do not "
@@ -1460,7 +1695,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
 
     optional = armature is not None
     s = _section(source, data, "pull_in", required=not (optional or "pull_in" in sheet))
-    pull_in = PullIn(current(s, "current", None if need is None else need["pull_in"]),
+    pull_in = PullIn(current(s, "current", None if need is None else need.get("pull_in")),
                      s.quantity("margin", "dimensionless", 1.5),
                      # with [armature] the seat time comes from the force balance itself and
                      # pull_in.current carries armature.current_margin: no second margin by default
@@ -1473,19 +1708,31 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
                      f"{brd.name!r} has no [supply_sense]")
     s.finish()
     s = _section(source, data, "hold")
-    hold = Hold(current(s, "current", None if need is None else need["hold"]),
+    if s.table.get("mode") == "latch":
+        hold, release, latch = _read_latch(source, data, s, pull_in)
+        return _latch_drive(source, path, data, brd, coil, sheet, supply, ambient, thermal, pull_in,
+                            hold, release, armature, duty, latch)
+    for name in ("reset", "reset_coil"):
+        if name in data:
+            raise InputError(source, name, f"[{name}] is for a latching coil only, expected it left "
+                             "out (or [hold] mode = \"latch\")")
+    hold = Hold(current(s, "current", None if need is None else need.get("hold")),
                 s.quantity("frequency", "frequency", positive=True),
                 s.choice("mode", HOLD_MODES, "voltage"),
                 s.fraction("frequency_tolerance", 0.01))
     hold = _read_current_mode(s, hold)
     hold = _check_regulation(s, _read_regulation(s, hold), brd)
+    hold = dataclasses.replace(hold, fast_fraction=s.fraction("fast_fraction", 0.0, below_one=False))
+    if not hold.fast_fraction <= 1.0:
+        raise s.fail("fast_fraction", f"{hold.fast_fraction:g} is more than the whole off-time, "
+                     "expected 0..1")
     if hold.current >= pull_in.current:
         what = " (derived from the mechanics)" if "hold.current" in derived else ""
         raise s.fail("current", f"{hold.current:g} A{what} is not below pull_in.current "
                      f"({pull_in.current:g} A), expected hold < pull-in")
     s.finish()
     s = _section(source, data, "release", required=not (optional or "release" in sheet))
-    release = Release(current(s, "current", None if need is None else need["release"]))
+    release = Release(current(s, "current", None if need is None else need.get("release")))
     if release.current >= hold.current:
         what = " (derived from the mechanics)" if "release.current" in derived else ""
         raise s.fail("current", f"{release.current:g} A{what} drop-out is not below hold.current "
@@ -1494,6 +1741,88 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
     if armature is not None and derived:
         armature = dataclasses.replace(armature, derived=tuple(derived))
 
+    return _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_in, hold,
+                         release, armature, duty)
+
+
+def _read_latch(source: str, data: dict, s: "_Section", pull_in: PullIn) -> tuple[Hold, Release, Latch]:
+    """``[hold] mode = "latch"`` (its only other key ``recharge_tolerance``), ``[reset]`` and
+    the optional ``[reset_coil]``: the hold and release a latching coil does not have (zero
+    currents, never read) and its :class:`Latch`."""
+    s.choice("mode", HOLD_MODES)
+    tol = s.fraction("recharge_tolerance", 0.01)
+    if not tol > 0:
+        raise s.fail("recharge_tolerance", "0 would wait for ever for the capacitor, expected a "
+                     "fraction above 0 (0.01 = within 1 % of the supply)")
+    s.finish()
+    if "release" in data:
+        raise InputError(source, "release", "a latching coil stays where its last pulse put it (no "
+                         "drop-out current): expected [release] left out; the reset pulse is [reset]")
+    r = _section(source, data, "reset")
+    reset = (r.quantity("current", "current", positive=True), r.quantity("margin", "dimensionless", 1.5),
+             r.quantity("current_margin", "dimensionless", PULL_IN_CURRENT_MARGIN),
+             r.quantity("settle_time", "time", 0.0, nonnegative=True))
+    r.finish()
+    reset_coil = None
+    if "reset_coil" in data:
+        c = _section(source, data, "reset_coil")
+        for key in ("rated_voltage", "rated_power", "pick_up_voltage", "drop_out_voltage",
+                    "flux_current", "flux_linkage", "operate_time", "release_time", "stated_temp"):
+            if key in c.table:
+                raise c.fail(key, "the reset winding takes resistance, reference_temp, inductance and "
+                             "their tolerances only, expected this key left out")
+        reset_coil, _ = _read_coil(c, None)
+        c.finish()
+    return (Hold(0.0, 0.0, "latch"), Release(0.0),
+            Latch(*reset, reset_coil=reset_coil, recharge_tolerance=tol))
+
+
+def _latch_drive(source, path, data, brd, coil, sheet, supply, ambient, thermal, pull_in, hold,
+                 release, armature, duty, latch) -> Drive:
+    """A latching coil's :class:`Drive`: what it is not designed with is refused in one line."""
+    why = None
+    if armature is not None:
+        key, why = "armature", "a moving armature (the pulses are sized from the currents)"
+    elif sheet or coil.rated_voltage:
+        key, why = "coil", "the coil's datasheet voltages (give resistance and the currents)"
+    elif coil.flux_current:
+        key, why = "coil.flux_current", "a flux-linkage curve"
+    elif duty is not None:
+        key, why = "duty", "an on/off cycle (the design gives the shortest interval instead)"
+    elif pull_in.compensate:
+        key, why = "pull_in.compensate", "a supply-compensated peak"
+    elif thermal.resistance > 0 and not thermal.capacity > 0:
+        key, why = "thermal.capacity", ("no heat capacity (the pulses' heat and the interval between "
+                                        "them need it: give thermal.capacity or time_constant)")
+    if why is not None:
+        raise InputError(source, key, f"a latching coil ([hold] mode = \"latch\") is not designed with {why}")
+    return _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_in, hold,
+                         release, armature, duty, latch)
+
+
+def _check_latch(source: str, switch: Switch, freewheel: Freewheel, latch: Latch) -> None:
+    """A latching coil's circuit: a full bridge reverses one coil (no [reset_coil]); one
+    switch per winding (low or high side) needs the reset winding."""
+    if switch.topology == "full_bridge" and latch.reset_coil is not None:
+        raise InputError(source, "reset_coil", "a full bridge resets the one coil with the other "
+                         "polarity: expected [reset_coil] left out (or a low- or high-side board)")
+    if freewheel.type == "clamp":
+        raise InputError(source, "freewheel.type", "\"clamp\" with a latching coil: a clamp across the "
+                         "switch draws from the bus after each pulse, which the pulse energies do not "
+                         "model yet; expected \"diode\", \"zener\" or \"resistor\"")
+    if freewheel.split_decay:
+        raise InputError(source, "freewheel.split_decay", "a latching coil has no hold to decay slowly "
+                         "in: expected split_decay left out")
+    if switch.topology != "full_bridge" and latch.reset_coil is None:
+        raise InputError(source, "reset_coil", f"missing: a {switch.topology.replace('_', '-')} switch "
+                         "drives one polarity, so a latching coil needs its reset winding ([reset_coil]) "
+                         "on a second switch, or a full bridge")
+
+
+def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_in, hold, release,
+                  armature, duty, latch=None) -> Drive:
+    """The drive's switch and freewheel path (the board's, with the drive file's
+    overrides), the checks that need them, and the :class:`Drive`."""
     merged, origins = _merged(brd.source, dataclasses.asdict(brd.switch), source,
                               data.get("switch"))
     switch = _read_switch(_Section(source, merged, "switch", origins))
@@ -1506,6 +1835,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
     merged, origins = _merged(brd.source, fw_board, source, fw_drive)
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
     _check_bridge(source, origins, switch, freewheel, supply, hold, armature)
+    _eddy_limits(source, coil, hold, freewheel, switch, thermal, duty, supply)
     _check_droop(source, origins, coil, switch, freewheel, supply, hold, armature)
     _check_boost(source, origins, coil, switch, freewheel, supply, hold, pull_in, armature, duty)
     _flux_curve_limits(source, coil, hold, freewheel, switch, thermal, duty)
@@ -1513,5 +1843,7 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
         raise InputError(origins.get("clamp_voltage", source), "freewheel.clamp_voltage",
                          f"{freewheel.clamp_voltage:g} V is not above supply.max ({supply.max:g} V): "
                          "the clamp would conduct with the switch off")
+    if latch is not None:
+        _check_latch(source, switch, freewheel, latch)
     return Drive(path.stem, coil, supply, ambient, thermal, pull_in, hold, release, brd, switch,
-                 freewheel, armature, source, duty)
+                 freewheel, armature, source, duty, latch=latch)

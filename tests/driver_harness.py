@@ -162,7 +162,7 @@ def budget_script(d) -> list[tuple[str, int]]:
 def budget_shapes() -> list[tuple[str, object]]:
     shapes = [(name, example_design(name)) for name in
               ("demo-valve", "door-latch-24v", "locker-latch-12v", "pinch-valve-48v", "relay-12v",
-               "wash-valve-split-24v", "dosing-valve-closed-loop")]
+               "wash-valve-split-24v", "dosing-valve-closed-loop", "dosing-valve-bridge-24v")]
     for control in ("hysteretic", "off_time"):
         shapes.append((f"demo-valve {control}", example_design(
             "demo-valve", ('frequency = "25 kHz"', f'frequency = "25 kHz"\nmode = "current"\ncontrol = "{control}"'))))

@@ -42,7 +42,7 @@ RTOL = 1e-9
 def pair(p: ArmatureParams, other: ArmatureParams) -> ArmatureParams:
     """``p`` as point 0 of a two-point batch (point 1: ``other``)."""
     return ArmatureParams.make(**{f: np.concatenate([getattr(p, f), getattr(other, f)])
-                                  for f in p.__dataclass_fields__})
+                                  for f in p.arrays})
 
 
 def assert_same(single, batch, what: str) -> None:

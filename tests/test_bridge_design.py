@@ -150,16 +150,24 @@ def test_simulated_release_is_the_fast_decay(tmp_path):
     t_drop = np.interp(drive.release.current, i[after][::-1], t[after][::-1]) - t[k_off]
     assert t_drop == pytest.approx(float(rel.drop_time), rel=1e-6)
     assert w["switch_voltage_v"][after].max() == pytest.approx(24.0 + drive.freewheel.diode_drop)
-    # in the hold the open high-side switches hold off the bus
+    # in the hold's off-times Q1 holds off the bus above leg A (at -R_sw i: Q2 carries the
+    # current back); in the on-times Q2 and Q3 hold off the bus less Q1's drop (inline sense)
+    r_sw = drive.switch.on_resistance
     hold_off = (on == 0) & (t < t[k_off])
-    assert np.allclose(w["switch_voltage_v"][hold_off], 24.0)
+    assert np.allclose(w["switch_voltage_v"][hold_off], 24.0 + r_sw * i[hold_off], rtol=0, atol=1e-5)
+    assert np.allclose(w["switch_voltage_v"][on == 1], 24.0 - r_sw * i[on == 1], rtol=0, atol=1e-5)
+    # the switches' columns are the phase table (Q1 + Q4 on, Q2 + Q4 off, all open after)
+    for name, state_on, state_off in (("high_a", 1, 0), ("low_a", 0, 1), ("high_b", 0, 0), ("low_b", 1, 1)):
+        assert np.all(w[f"{name}_on"][on == 1] == state_on) and np.all(w[f"{name}_on"][hold_off] == state_off)
+        assert np.all(w[f"{name}_on"][after] == 0)
 
 
 def test_header_and_driver(tmp_path):
     text = generate_header(design(load_drive(BRIDGE)))
     assert "#define COIL_SWITCH_TOPOLOGY               COIL_TOPOLOGY_FULL_BRIDGE" in text
     assert "pump-up   the bus rises to" in text
+    assert "#define COIL_BRIDGE_HOLD_DECAY_SWITCHES    10U" in text
     res = CliRunner().invoke(app, ["firmware-driver", str(BRIDGE), "--out", str(tmp_path / "drv")])
-    assert res.exit_code == 2 and "switch.topology" in res.stderr
-    assert len(res.stderr.strip().splitlines()) == 1
-    assert not (tmp_path / "drv").exists() or not any((tmp_path / "drv").iterdir())
+    assert res.exit_code == 0, res.stderr
+    assert "coil_port_bridge(COIL_BRIDGE_PEAK_SWITCHES, COIL_BRIDGE_HOLD_DECAY_SWITCHES)" in (
+        tmp_path / "drv" / "coil_driver.c").read_text()

@@ -211,7 +211,7 @@ def test_cli_seated_prints_a_second_table_and_json(tmp_path):
     r = run_cli(*args, "--seated")
     assert r.returncode == 0, r.stderr
     assert r.stdout.startswith(plain.stdout)                    # the [coil] section first, unchanged
-    assert "# seated_current = [0," in r.stdout and "# seated_linkage = [" in r.stdout
+    assert "\nseated_current = [0," in r.stdout and "\nseated_linkage = [" in r.stdout
     assert "seated curve from 2 release(s)" in r.stderr
     doc = json.loads(run_cli(*args, "--seated", "--json").stdout)
     assert doc["open"]["current_a"] == json.loads(run_cli(*args, "--json").stdout)["current_a"]
@@ -241,7 +241,7 @@ def test_cli_seated_from_a_capture_whose_armature_moves(tmp_path):
             "--flux-curve", "--seated")
     r = run_cli(*args)
     assert r.returncode == 0, r.stderr
-    assert "[coil]" not in r.stdout and "# seated_linkage = [" in r.stdout
+    assert "[coil]" not in r.stdout and "\nseated_linkage = [" in r.stdout
     assert "no open curve in this capture" in r.stderr and "armature moves" in r.stderr
     doc = json.loads(run_cli(*args, "--json").stdout)
     assert doc["open"] is None and "no open curve" in doc["notes"][0]

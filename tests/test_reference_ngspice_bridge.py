@@ -20,7 +20,9 @@ level, written here from invented element values (a 24 V valve-like coil):
 Checks (1 %, times plus one step): the rise (two switches and the sense resistor in the
 loop), the fast decay (release time, time to zero, the switches' voltage, the energy
 returned to the supply), the slow decay (release time, nothing returned), and the bus
-pump-up into the bulk capacitance (the bus voltage when the current stops, and when).
+pump-up into the bulk capacitance (the bus voltage when the current stops, and when);
+and `coildrive simulate`'s switch columns played into the netlist's gates (the phases the
+header and the driver switch) against the CSV's current and coil voltage.
 """
 
 from __future__ import annotations
@@ -170,3 +172,128 @@ def test_pump_up_into_the_bulk_capacitance_matches_ngspice(tmp_path, capacitance
     assert abs(res["tzero"] - t_off - float(pu.zero_time)) <= 0.01 * float(pu.zero_time) + step
     # the bus rising against the coil stops it sooner than a fixed bus would
     assert float(pu.zero_time) < t_fixed
+
+
+def test_simulated_switch_columns_drive_the_element_level_bridge(tmp_path):
+    """`coildrive simulate`'s per-switch columns of a bridge, played into the gates of the
+    element-level netlist (each switch's edges; a switch that turns on waits STAGGER after
+    the one that turns off, a dead time in which a body diode carries the current): the
+    current at the end of the peak and at the final turn-off, the time to zero, and the
+    coil voltage in a slow and in a fast decay, against the CSV (ngspice, 1 %)."""
+    import numpy as np
+
+    from conftest import BOARDS, EXAMPLES, run_cli
+    board = tmp_path / "bridge.toml"
+    board.write_text((BOARDS / "bridge-m32-fast.toml").read_text().replace(
+        'on_resistance = "40 mohm"', f'on_resistance = "{R_SW * 1e3:g} mohm"'))
+    drive = tmp_path / "drive.toml"
+    text = (EXAMPLES / "dosing-valve-bridge-24v.toml").read_text()
+    for old, new in (('board = "bridge-m32-fast"', f'board = "{board}"'),
+                     ('resistance = "24 ohm"', f'resistance = "{R_COIL:g} ohm"'),
+                     ('inductance = "70 mH"', f'inductance = "{L_COIL * 1e3:g} mH"')):
+        assert old in text
+        text = text.replace(old, new)
+    drive.write_text(text)
+    csv = tmp_path / "act.csv"
+    r = run_cli("simulate", str(drive), "--supply", f"{V_SUP:g}", "--coil-temp", "20", "--hold-time", "1 ms",
+                "--csv", str(csv))
+    assert r.returncode == 0, r.stderr
+    w = np.genfromtxt(csv, delimiter=",", names=True)
+    t, on = w["time_s"], w["switch_on"]
+    change = np.nonzero(np.diff(on))[0]
+    # an edge sits on the sample of the on-time it ends or starts
+    edges = [float(t[k] if on[k] == 1 else t[k + 1]) for k in change]
+    names = ("high_a", "low_a", "high_b", "low_b")
+    gates = {}
+    for q, name in enumerate(names, start=1):
+        col = w[f"{name}_on"]
+        level = int(col[0])
+        points = [(0.0, level)]
+        for k, edge in zip(change, edges):
+            new = int(col[k + 1])
+            if new != level:
+                # off at the edge (Q4 one STAGGER later at the release), on one STAGGER later
+                at = edge + (STAGGER if new == 1 or (name == "low_b" and k == change[-1]) else 0.0)
+                points += [(at, level), (at + EDGE, new)]
+                level = new
+        gates[q] = "PWL(" + " ".join(f"{a!r} {b}" for a, b in points) + ")"
+    t_peak, t_off = edges[0], edges[-1]
+    t_zero = float(t[-1]) - t_off
+    k_slow = change[-3]          # the middle of the last off-time of the hold
+    t_slow = 0.5 * (edges[-3] + edges[-2])
+    t_fast = t_off + 0.5 * t_zero
+    step = 2e-7
+    measures = ["let vcoil = v(n2) - v(b)", "let vq1 = v(bus) - v(a)",
+                f"meas tran ipeak FIND i(VM) AT={t_peak!r}", f"meas tran ioff FIND i(VM) AT={t_off!r}",
+                "meas tran tzero WHEN i(VM)=1e-6 FALL=1",
+                f"meas tran vslow FIND vcoil AT={t_slow!r}", f"meas tran vfast FIND vcoil AT={t_fast!r}",
+                f"meas tran vq1fast FIND vq1 AT={t_fast!r}"]
+    res = run(tmp_path, "bridge-phases", _netlist("bridge-phases", gates, t_off + 1.2 * t_zero, step,
+                                                  measures, inline=True))
+
+    def model(col, at):
+        return float(np.interp(at, t, w[col]))
+    assert on[k_slow + 1] == 0
+    # ngspice: the currents within 1 %, the time to zero within 1 % plus a step
+    assert res["ipeak"] == pytest.approx(model("current_a", t_peak), rel=0.01)
+    assert res["ioff"] == pytest.approx(model("current_a", t_off), rel=0.01)
+    assert abs(res["tzero"] - t_off - t_zero) <= 0.01 * t_zero + step, (res["tzero"] - t_off, t_zero)
+    # ngspice: the coil voltage in the slow decay (-(2 R_sw + R_sense) i) and in the fast one
+    # (-(V_bus + 2 V_d + R_sense i)), and Q1's voltage in the fast one, within 1 %
+    assert res["vslow"] == pytest.approx(model("coil_voltage_v", t_slow), rel=0.01)
+    assert res["vfast"] == pytest.approx(model("coil_voltage_v", t_fast), rel=0.01)
+    assert res["vq1fast"] == pytest.approx(model("switch_voltage_v", t_fast), rel=0.01)
+def _mixed_gates(t_on, t_fast, period):
+    """Gates of a mixed-decay hold from t = 0: Q1 + Q4 on for ``t_on``, all off for ``t_fast``
+    (Q4 opens ``STAGGER`` after Q1), then Q2 + Q4 on (Q4 closes ``STAGGER`` after Q2) until
+    Q2 opens two edges before the next period's on-time (its body diode carries the dead
+    time)."""
+    def pulse(start, width):
+        return f"PULSE(0 1 {start!r} {EDGE} {EDGE} {width - EDGE!r} {period!r})"
+    slow = period - t_on - t_fast - 2 * EDGE
+    # with no slow part Q4 closes STAGGER before the next on-time instead (Q1 alone drives
+    # nothing): the current has died in the fast part by then (the DCM case below)
+    q4_open = t_fast - EDGE if slow > EDGE else t_fast - 2 * STAGGER - EDGE
+    return {1: pulse(0.0, t_on), 2: pulse(t_on + t_fast, slow) if slow > EDGE else "DC 0",
+            3: "DC 0",
+            4: f"PULSE(1 0 {t_on + STAGGER!r} {EDGE} {EDGE} {q4_open!r} {period!r})"}
+
+
+@pytest.mark.parametrize("duty,fraction,inline", [(0.3, 0.2, False), (0.3, 0.2, True), (0.05, 1.0, True)],
+                         ids=["ccm-common-return", "ccm-inline", "dcm-all-fast"])
+def test_mixed_decay_orbit_matches_ngspice(tmp_path, duty, fraction, inline):
+    """The hold's exact orbit with a fraction of each off-time fast (model.pwm's
+    mixed_steady_state) against the bridge driven with that gate pattern, started on the
+    model's orbit: the period's lowest and highest current, its mean, and the energy the
+    supply takes back in one period, within 1 %."""
+    from coildrive.model.pwm import MixedDecay, pwm_steady_state
+
+    freq = 20e3
+    period = 1.0 / freq
+    r_on = R_COIL + 2 * R_SW + R_SENSE
+    r_slow = R_COIL + 2 * R_SW + (R_SENSE if inline else 0.0)
+    mixed = MixedDecay(fraction, R_COIL + R_SENSE, V_SUP + 2 * V_D)
+    ss = pwm_steady_state(duty, freq, V_SUP, r_on, r_slow, 0.0, L_COIL, mixed=mixed)
+    t_on = duty * period
+    t_fast = fraction * (period - t_on)
+    n = 4
+    step = period / 4000
+    t0 = (n - 1) * period
+    a, b = f"from={t0!r} to={n * period!r}", f"from={t0!r} to={n * period - step!r}"
+    # the supply takes current back only in the fast part (Q1 open .. Q4 closed again)
+    fast = f"from={t0 + t_on + EDGE!r} to={t0 + t_on + t_fast + 2 * STAGGER!r}"
+    measures = ["let back = -v(bus) * i(VFEED)",
+                f"meas tran imax MAX i(VM) {a}", f"meas tran imin MIN i(VM) {b}",
+                f"meas tran iavg AVG i(VM) {a}", f"meas tran eback INTEG back {fast}"]
+    text = _netlist("bridge-mixed", _mixed_gates(t_on, t_fast, period), n * period, step, measures,
+                    inline=inline)
+    text = text.replace("IC=0\n", f"IC={float(ss.i_min)!r}\n")
+    res = run(tmp_path, "bridge-mixed", text)
+    # ngspice: the orbit's top, bottom and mean within 1 % (the bottom of a DCM orbit is 0)
+    assert res["imax"] == pytest.approx(float(ss.i_max), rel=0.01), (res["imax"], float(ss.i_max))
+    assert res["iavg"] == pytest.approx(float(ss.mean), rel=0.01), (res["iavg"], float(ss.mean))
+    assert abs(res["imin"] - float(ss.i_min)) <= 0.01 * float(ss.i_max), (res["imin"], float(ss.i_min))
+    # ngspice: the energy back into the supply per hold period, V_bus x the fast part's charge
+    back = V_SUP * float(ss.charge_fast)
+    assert res["eback"] == pytest.approx(back, rel=0.01), (res["eback"], back)
+    assert bool(ss.dcm) == (duty == 0.05)

@@ -470,33 +470,22 @@ def test_hold_and_release_loops_coincide_without_split_decay():
 
 
 # --------------------------------------------------------------------------- ngspice
-@pytest.mark.ngspice
-def test_split_decay_hold_and_release_match_ngspice(tmp_path):
-    """ngspice transient (batch mode) of the split-decay circuit with a real bypass switch
-    across the Zener on its own gate: the hold's steady state and element powers follow
-    the slow loop, the release after the bypass opens the fast one."""
+def split_netlist(drive, supply: float, temp: float, duty: float, f: float, t_drop: float,
+                  cycles: float = 14.0):
+    """The split-decay circuit for ngspice (batch transient): a real bypass switch across
+    the Zener on its own gate, the coil as ``LCOIL n1 n2`` (tests/test_flux_ngspice.py
+    swaps in a flux-controlled one). ``cycles`` time constants of start-up before the
+    measured last hold period. Returns the netlist and ``(t_cut, step)``."""
     from ngspice_run import G_OFF, OPTIONS
     from ngspice_run import knee as _knee
-    from ngspice_run import run as _run
     from test_reference_ngspice import EDGE, G_OFF_SWITCH, R_BLEED
 
-    from coildrive.design.evaluate import release_figures
-
-    drive = load_drive(SPLIT)
     fw = drive.freewheel
-    supply, temp = 24.0, 70.0
-    d = design(drive)
-    duty, f = d.hold.duty, d.hold.frequency_hz
-    lp = loop(drive, supply, temp)
-    fast = loop(drive, supply, temp, path="release")
-    ss = pwm_steady_state(duty, f, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
-    loss = hold_losses(drive, lp, ss, f)
-    t_drop, _, _, _ = release_figures(drive, lp, fast, ss.i_max)
     p = parts(drive, supply, temp)
     assert p.sense_in_coil_path, "the netlist below puts the sense resistor in the coil path"
     period = 1.0 / f
     tau = p.inductance / (p.r_coil + p.r_sense)
-    n = math.ceil(14.0 * tau * f)                  # periods: start-up transient down to e^-14
+    n = math.ceil(cycles * tau * f)                # periods: start-up transient down to e^-cycles
     t_last = n * period                            # the last on-time starts here
     t_cut = t_last + duty * period - EDGE          # the final falling edge starts
     t_byp = t_cut - fw.bypass_lead                 # the bypass opens
@@ -534,7 +523,14 @@ def test_split_decay_hold_and_release_match_ngspice(tmp_path):
         f"meas tran vrel FIND v(drain) AT={t_cut + 20 * step!r}",
         f"meas tran irel FIND i(VM) AT={t_cut + 20 * step!r}",
         "quit 0", ".endc", ".end"]) + "\n"
-    res = _run(tmp_path, "split", text)
+    return text, (t_cut, step)
+
+
+def check_split_against_ngspice(res: dict, drive, supply: float, temp: float, ss, loss, t_drop,
+                                t_cut: float, step: float) -> None:
+    """The ngspice measures of :func:`split_netlist` against the model's hold ``ss``
+    (steady state of the slow loop), its losses and the release's drop-out time."""
+    p = parts(drive, supply, temp)
     # ngspice, last hold period: mean within 1 %, ripple within 3 % of the slow loop
     assert res["iavg"] == pytest.approx(float(ss.mean), rel=0.01), (res["iavg"], float(ss.mean))
     assert res["iopen"] - res["istart"] == pytest.approx(float(ss.ripple), rel=0.03)
@@ -547,3 +543,26 @@ def test_split_decay_hold_and_release_match_ngspice(tmp_path):
     t_spice = res["tdrop"] - t_cut
     assert abs(t_spice - float(t_drop)) <= 0.01 * float(t_drop) + step, (t_spice, float(t_drop))
     assert res["vrel"] == pytest.approx(supply + p.v_diode + p.v_zener, rel=0.002), res["vrel"]
+
+
+@pytest.mark.ngspice
+def test_split_decay_hold_and_release_match_ngspice(tmp_path):
+    """ngspice transient (batch mode) of the split-decay circuit with a real bypass switch
+    across the Zener on its own gate: the hold's steady state and element powers follow
+    the slow loop, the release after the bypass opens the fast one."""
+    from ngspice_run import run as _run
+
+    from coildrive.design.evaluate import release_figures
+
+    drive = load_drive(SPLIT)
+    supply, temp = 24.0, 70.0
+    d = design(drive)
+    duty, f = d.hold.duty, d.hold.frequency_hz
+    lp = loop(drive, supply, temp)
+    fast = loop(drive, supply, temp, path="release")
+    ss = pwm_steady_state(duty, f, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
+    loss = hold_losses(drive, lp, ss, f)
+    t_drop, _, _, _ = release_figures(drive, lp, fast, ss.i_max)
+    text, (t_cut, step) = split_netlist(drive, supply, temp, duty, f, t_drop)
+    res = _run(tmp_path, "split", text)
+    check_split_against_ngspice(res, drive, supply, temp, ss, loss, t_drop, t_cut, step)

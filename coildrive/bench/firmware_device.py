@@ -40,7 +40,9 @@ from pathlib import Path
 
 import numpy as np
 
+from ..model import eddy
 from ..model.circuit import loop
+from ..model.eddy import EddyCoil
 from ..model.rl import decay_current, rise_current
 from .messages import Opcode, Reply, ReplyStatus
 from .device import BITS_PER_BYTE, DeviceOptions, DeviceStats, LineOutput, LogEntry
@@ -65,7 +67,7 @@ def load_library(path: Path) -> ctypes.CDLL:
                             ("fil_push_block", size, [ctypes.POINTER(u16), size]),
                             ("fil_poll", size, []), ("fil_flush", size, []),
                             ("fil_take", size, [ctypes.POINTER(u8), size]), ("fil_outputs", u32, []),
-                            ("fil_state", u8, []), ("fil_fault", u8, []), ("fil_lost", u32, []),
+                            ("fil_state", u8, []), ("fil_bridge", u8, []), ("fil_fault", u8, []), ("fil_lost", u32, []),
                             ("fil_receive", ctypes.c_int, [u8]), ("fil_command_opcode", u8, []),
                             ("fil_command_argument", u32, []),
                             ("fil_reply", None, [u8, u32, ctypes.c_char_p])):
@@ -146,6 +148,12 @@ class FirmwareDevice(LineOutput):
         self._cmd_pending = False
         #: s before an actuation at which a fault is cleared: the release lockout, and a tick
         self._clear_lead = (design.release.lockout_ticks + 2) / self.tick_rate
+        #: a full bridge's switch masks (drive, slow decay, fast decay) of the design
+        self._bridge = None
+        if design.topology is not None and design.topology.bridge is not None:
+            from ..model.bridge import switch_mask
+            on = design.topology.bridge.switches_on
+            self._bridge = (switch_mask(on["hold_on"]), switch_mask(on["hold_decay"]), switch_mask(on["release"]))
         self._take_frames()
 
     def supply_step(self, at: float, supply: float) -> None:
@@ -332,7 +340,7 @@ class FirmwareDevice(LineOutput):
         enable, compare = out >> 24 & 1, out & 0xFFFFFF
         on_end = t0 + (T * min(compare, self.period_counts) / self.period_counts if enable else 0.0)
         i0 = self._i
-        bypass = out >> 25 & 1 or not self._split()
+        bypass = self._bridge_slow(enable) if self._bridge is not None else (out >> 25 & 1 or not self._split())
         full_on = bool(enable) and compare >= self.period_counts
         if self._flight is not None and full_on and self._state == STATE_PEAK and self._flight_t0 is None \
                 and i0 < 1e-9:
@@ -345,17 +353,37 @@ class FirmwareDevice(LineOutput):
             on = self._loops["hold"]
             return rise_current(np.asarray(x, float) - t0, i0, on.v_on, on.r_on, on.inductance)
 
+        def terminal_current(x, i_m):
+            """What the sense resistor carries: the coil's current, or with an eddy
+            resistance the terminal current of the magnetising current ``i_m``."""
+            e = self._loops["hold"].inductance
+            if not isinstance(e, EddyCoil):
+                return i_m
+            lp = self._loops["hold" if bypass else "release"]
+            on = self._loops["hold"]
+            return np.where(np.asarray(x) <= on_end, eddy.terminal(i_m, on.v_on, on.r_on, e.resistance),
+                            np.maximum(eddy.terminal(i_m, -lp.v_off, lp.r_off, e.resistance), 0.0))
+
+        #: a full bridge's slow decay that the driver ends at the conversion (all four open):
+        #: the time it does, s, from which the current decays fast
+        cut: list[float] = []
+
         def current(x):
             x = np.asarray(x, float)
             lp = self._loops["hold" if bypass else "release"]
             i_on = on_current(np.minimum(x, on_end))
             i_end = on_current(on_end)
             i_off = decay_current(x - on_end, i_end, lp.r_off, lp.v_off, lp.inductance)
+            if cut:
+                fast = self._loops["release"]
+                i_cut = decay_current(cut[0] - on_end, i_end, lp.r_off, lp.v_off, lp.inductance)
+                i_off = np.where(x > cut[0], decay_current(x - cut[0], i_cut, fast.r_off, fast.v_off,
+                                                           fast.inductance), i_off)
             i = np.where(x <= on_end, i_on, i_off)
             return np.zeros_like(i) if self.options.fault == "open" else i
 
         def sensed(x):
-            i = current(x)
+            i = terminal_current(x, current(x))
             return np.where(np.asarray(x) < on_end, i, 0.0) if self.sense_in_switch else i
 
         # conversion point: middle of the on-time under the switch, middle of the period in the coil path
@@ -372,6 +400,8 @@ class FirmwareDevice(LineOutput):
         new = int(self.lib.fil_outputs())
         if not new >> 24 & 1 and on_end > s:
             on_end = s                      # the switch output is disabled at once
+        if self._bridge is not None and bypass and not new >> 24 & 1:
+            cut.append(s)                   # the bridge opens all four: fast decay from here
         self._outputs = new
         self._run_samples(s, t0 + T, sensed)
         for tt in [x for x in ticks if x >= s]:
@@ -385,6 +415,23 @@ class FirmwareDevice(LineOutput):
         self._t = t0 + T
         self._take_frames()
         return T
+
+    def _bridge_slow(self, enable: int) -> bool:
+        """A full bridge's off-times: True for the slow decay (the hold's path, the masks the
+        driver set are the design's hold), False for the fast one (all four open).
+
+        Raises ``RuntimeError`` for masks the coil model has no path for (a driver that
+        does not switch the design's phases)."""
+        masks = int(self.lib.fil_bridge())
+        on_mask, off_mask = masks & 0x0F, masks >> 4
+        drive, slow, fast = self._bridge
+        if not enable:
+            return False
+        if on_mask != drive or off_mask not in (slow, fast):
+            raise RuntimeError(f"the driver switches the bridge's on-times as {on_mask:#x} and off-times as "
+                               f"{off_mask:#x}; the coil model has paths for on {drive:#x}, off {slow:#x} "
+                               f"(slow decay) or {fast:#x} (fast decay)")
+        return off_mask == slow
 
     def _split(self) -> bool:
         return self.design.split_decay is not None

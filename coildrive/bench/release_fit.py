@@ -82,8 +82,9 @@ class SeatedFit:
         return fit_dict(self)
 
     def text(self) -> str:
-        """The seated table as TOML comments (for information: a drive file without
-        ``[armature]`` takes one curve, the open one)."""
+        """The seated table as ``[coil]`` keys (``seated_current``, ``seated_linkage``),
+        to paste below the open curve of a drive file with ``[armature]`` (one without
+        takes one curve, the open one, and refuses these keys)."""
         cur, flux = table_text(self.current_a, self.flux_wb)
         above = (f"; the seated curve above {self.seated_above_a:.4g} A only (the armature lets go "
                  "below it)" if self.seated_above_a > 0 else "")
@@ -92,9 +93,10 @@ class SeatedFit:
             f"({self.freewheel_voltage_v:.4g} V + {self.freewheel_resistance_ohm:.4g} ohm) over "
             f"{self.actuations} actuation(s), residual {self.residual:.2%}; covers "
             f"0..{self.current_a[-1]:.4g} A{above}",
-            "# for information: a drive file without [armature] takes one curve",
-            f"# seated_current = [{cur}]",
-            f"# seated_linkage = [{flux}]",
+            "# with [armature] these two lines follow flux_current/flux_linkage "
+            "(docs/coil-model.md); without [armature] leave them out",
+            f"seated_current = [{cur}]",
+            f"seated_linkage = [{flux}]",
         ]) + "\n"
 
 
@@ -121,7 +123,7 @@ def fit_seated(capture: Capture, board: Board, supply: float, coil_temp: float |
     module docstring). ``supply`` V; ``coil_temp`` degC (``None``: 20 degC, noted);
     ``resistance`` the coil's ohm at that temperature (``None``: from the settled current
     at the end of each peak, as :func:`coildrive.bench.flux_fit.fit_flux`)."""
-    from .fit import coil_temperature
+    from .fit import coil_temperature, drive_switch_resistance
 
     if not (math.isfinite(supply) and supply > 0):
         raise InputError("--supply", "", f"{supply!r} must be a voltage above zero")
@@ -144,7 +146,7 @@ def fit_seated(capture: Capture, board: Board, supply: float, coil_temp: float |
     fs, apc = meta.sample_rate_hz, meta.amps_per_code
     if analysis is None:
         analysis = analyse(capture)
-    r_extra = board.switch.on_resistance + board.sense.resistance
+    r_extra = drive_switch_resistance(board) + board.sense.resistance
     idx = capture.index
     notes: list[str] = []
     releases = []

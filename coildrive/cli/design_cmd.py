@@ -24,10 +24,17 @@ def _run_design(drive_path: Path, board: Optional[str], as_json: bool, header: O
 
     if samples < 0:
         raise InputError("--samples", "", f"{samples} is negative, expected a count >= 0")
+    from ..system_file import is_system_file
+    if is_system_file(drive_path):
+        from .system_cmd import run_system_design
+        return run_system_design(drive_path, board, as_json, header, plot, prefix, samples)
     drive = load_drive(drive_path, board)
     if header is not None:
         from ..codegen.header import check_prefix
         check_prefix(prefix)
+    if drive.latch is not None:
+        _run_latch(drive, as_json, header, plot, prefix, samples)
+        return
     result = design(drive, samples=samples, seed=seed)
     if as_json:
         typer.echo(json.dumps(result.to_dict(), indent=2))
@@ -39,25 +46,53 @@ def _run_design(drive_path: Path, board: Optional[str], as_json: bool, header: O
         from ..design.plot import plot_design
         write_atomic(plot, plot_design(result, design_waveforms(result), design_thermal_curves(result)))
         status(f"wrote plot {plot}")
+    from ..codegen.header import generate_header
+    _header_or_exit(result, header, lambda: generate_header(result, prefix))
+
+
+def _run_latch(drive, as_json: bool, header: Optional[Path], plot: Optional[Path], prefix: str,
+               samples: int) -> None:
+    """``design`` of a latching coil: its table or JSON, and its header."""
+    from ..design.latch import design_latch
+
+    if samples:
+        raise InputError("--samples", "", "a latching coil has no Monte Carlo yet, expected 0")
+    result = design_latch(drive)
+    if as_json:
+        typer.echo(json.dumps(result.to_dict(), indent=2))
+    else:
+        from ..design.latch_report import print_latch
+        print_latch(result)
+    if plot is not None:
+        from ..design.latch import latch_waveforms
+        from ..design.latch_plot import plot_latch
+        write_atomic(plot, plot_latch(result, latch_waveforms(result)))
+        status(f"wrote plot {plot}")
+    from ..codegen.latch_header import generate_latch_header
+    _header_or_exit(result, header, lambda: generate_latch_header(result, prefix))
+
+
+def _header_or_exit(result, header: Optional[Path], render) -> None:
+    """Write the header ``render()`` gives when the design passes; exit 1 when it fails
+    (saying the header was not written)."""
     if not result.ok:
         if header is not None:
             status(f"header {header} not written: the design fails "
                    + ", ".join(c.name for c in result.failed))
         raise typer.Exit(1)
     if header is not None:
-        from ..codegen.header import generate_header
-        write_atomic(header, generate_header(result, prefix))
+        write_atomic(header, render())
         status(f"wrote header {header}")
 
 
 @user_errors
 def design_command(
-    drive: Path = typer.Argument(..., help="Drive file (TOML)."),
+    drive: Path = typer.Argument(..., help="Drive file, or a system file of several channels (TOML)."),
     board: Optional[str] = typer.Option(None, "--board", "-b", help="Bundled board name or board file; overrides the drive file's board."),
     as_json: bool = typer.Option(False, "--json", help="Print the design as one JSON document on stdout."),
     header: Optional[Path] = typer.Option(None, "--header", help="Write the C header here (only when every check passes)."),
-    plot: Optional[Path] = typer.Option(None, "--plot", help="Write a PNG of the nominal and worst-corner actuation."),
-    prefix: str = typer.Option("COIL", "--prefix", help="Name prefix of the header's macros."),
+    plot: Optional[Path] = typer.Option(None, "--plot", help="Write a PNG of the nominal and worst-corner actuation (a system file: each channel's current bound and the rail's total against the limit, staggered and together)."),
+    prefix: str = typer.Option("COIL", "--prefix", help="Name prefix of the header's macros (a system file's shared block: BOARD unless given)."),
     samples: int = typer.Option(0, "--samples", help="Add a tolerance Monte Carlo of N samples."),
     seed: int = typer.Option(1, "--seed", help="Random seed of the Monte Carlo."),
 ) -> None:
@@ -77,9 +112,36 @@ def demo_command(
     _run_design(path, None, as_json, header, None, "VALVE", 0, 1)
 
 
+def _simulate_latch(drive, v: float, t: float, csv: Path, r_factor: float, l_factor: float,
+                    points: int, plot: Optional[Path]) -> None:
+    """``simulate`` of a latching coil: the set pulse, then the reset pulse one shortest
+    interval later (``--hold-time`` does not apply)."""
+    from ..design.latch import design_latch, winding_drive
+    from ..model.latch_waveform import latch_actuation
+
+    if plot is not None:
+        raise InputError("--plot", "", "a latching coil has no plot yet: plot the CSV")
+    d = design_latch(drive)
+    by = {p.name: p for p in d.latch.pulses}
+    for p in by.values():
+        if p.ticks is None:
+            raise InputError(str(drive.source), "pull_in.current" if p.name == "set" else "reset.current",
+                             f"the {p.name} pulse's current is {p.not_reached}, so there is no pulse to simulate")
+    if d.latch.interval_ticks is None:
+        raise InputError(str(drive.source), "thermal.capacity", "one pulse heats the coil past "
+                         "thermal.max_coil_temp (the coil_temperature check), so there is no interval "
+                         "between pulses to simulate")
+    w = latch_actuation(drive, winding_drive(drive, True), v, t, by["set"].time_s, by["reset"].time_s,
+                        d.latch.interval_s, r_factor, l_factor, 40 * points)
+    write_atomic(csv, w.to_csv())
+    status(f"wrote {csv}: {len(w.time)} samples, set pulse {by['set'].time_s * 1e3:.4g} ms (zero at "
+           f"{w.events['set_zero'] * 1e3:.4g} ms), reset pulse at {w.events['reset'] * 1e3:.4g} ms for "
+           f"{by['reset'].time_s * 1e3:.4g} ms (zero at {w.events['reset_zero'] * 1e3:.4g} ms)")
+
+
 @user_errors
 def simulate_command(
-    drive: Path = typer.Argument(..., help="Drive file (TOML)."),
+    drive: Path = typer.Argument(..., help="Drive file, or a system file of several channels (TOML)."),
     supply: str = typer.Option(..., "--supply", help='Bus voltage, e.g. 20 or "20 V".'),
     coil_temp: str = typer.Option(..., "--coil-temp", help='Coil temperature, e.g. 85 or "85 degC".'),
     csv: Path = typer.Option(..., "--csv", help="Write the waveform here (CSV)."),
@@ -105,7 +167,18 @@ def simulate_command(
             raise InputError(name, "", f"{f:g} must be greater than zero")
     if points < 2:
         raise InputError("--points", "", f"{points} is below 2, expected at least 2 samples per segment")
-    d = design(load_drive(drive, board))
+    from ..system_file import is_system_file
+    if is_system_file(drive):
+        if plot is not None or r_factor != 1.0 or l_factor != 1.0:
+            raise InputError("--plot" if plot is not None else "--r-factor", "", "not used with a "
+                             "system file (each channel runs at the file's nominal coil)")
+        from .system_cmd import run_system_simulate
+        return run_system_simulate(drive, board, v, t, h, points, csv)
+    drv = load_drive(drive, board)
+    if drv.latch is not None:
+        _simulate_latch(drv, v, t, csv, r_factor, l_factor, points, plot)
+        return
+    d = design(drv)
     if d.pull_in.peak_ticks is None:
         raise InputError(str(drive), "pull_in.current", f"{d.pull_in.not_reached}, so the design "
                          "has no peak time to simulate")

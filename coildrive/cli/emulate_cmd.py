@@ -37,7 +37,8 @@ def _quantity(text: Optional[str], dimension: str, option: str) -> float | None:
 
 @user_errors
 def emulate_command(
-    drive: Path = typer.Argument(..., help="Drive file (TOML)."),
+    drive: Path = typer.Argument(..., help="Drive file, or a system file with --channel (TOML)."),
+    channel: Optional[str] = typer.Option(None, "--channel", help="With a system file: the channel (its name) the device runs, on the system's shared timer."),
     board: Optional[str] = typer.Option(None, "--board", "-b", help="Bundled board name or board file; overrides the drive file's board."),
     supply: Optional[str] = typer.Option(None, "--supply", help='Bus voltage of the virtual bench, e.g. 20 or "20 V" (default: the nominal supply).'),
     coil_temp: Optional[str] = typer.Option(None, "--coil-temp", help='Coil temperature, e.g. 85 or "85 degC" (default: reference temperature within the ambient range).'),
@@ -85,7 +86,14 @@ def emulate_command(
         if not folder.is_dir() or line_log.is_dir():
             raise InputError("--line-log", "", f"{str(line_log)!r} cannot be written: expected a "
                              "file name in an existing folder")
-    d = design(load_drive(drive, board))
+    from ..system_file import is_system_file
+    if is_system_file(drive):
+        from .system_cmd import channel_drive
+        d = design(channel_drive(drive, board, channel))
+    else:
+        if channel is not None:
+            raise InputError("--channel", "", f"{drive} is a drive file, not a system file: leave --channel out")
+        d = design(load_drive(drive, board))
     try:
         if firmware is not None:
             from ..bench.firmware_device import FirmwareDevice

@@ -92,10 +92,14 @@ class DriverView:
         self.compare_type = c_uint_type(d.timer.period_ticks)
         self.adc_type = c_uint_type(2**board.adc.bits - 1)
         self.regulation = regulation_of(d)
-        if d.drive.switch.topology == "full_bridge":
-            raise InputError(d.drive.source or d.drive.name, "switch.topology",
-                             "'full_bridge': the reference driver runs one switch (low- or high-side); "
-                             "a bridge's four gates and decay modes are not in it yet")
+        #: a full bridge: the phase masks of the header drive its four switches
+        #: (port_bridge), the enable (port_switch) opens all four at once
+        self.bridge = d.topology is not None and d.topology.bridge is not None
+        if d.drive.hold.fast_fraction > 0:
+            raise InputError(d.drive.source or d.drive.name, "hold.fast_fraction",
+                             f"{d.drive.hold.fast_fraction:g}: this driver's bridge holds in slow "
+                             "decay only (its hold duty would be wrong for mixed decay), expected "
+                             "fast_fraction left out for firmware-driver and emulate --firmware")
         if d.drive.supply.boosted:
             raise InputError(d.drive.source or d.drive.name, "supply.boost",
                              "the reference driver runs the peak for its ticks; a boosted peak's boost "
@@ -206,9 +210,10 @@ def render_driver(design: Design, prefix: str = "coil") -> dict[str, str]:
 #: shares printed are an upper bound there. The test measures again and fails if a
 #: figure exceeds its bound or falls 10 % below it. ``adc_isr_closed_loop`` is the ADC
 #: handler of a closed-loop hold (the PI step's 32-bit multiplies through the libgcc
-#: routines of an 8-bit core), over the closed-loop example's script.
+#: routines of an 8-bit core), over the closed-loop example's script; ``adc_isr_bridge`` is
+#: a full bridge's (the phase masks set at each switch-on), over the bridge example's.
 HANDLER_CYCLES = {"adc_isr": 340, "pwm_isr": 11, "tick": 692, "threshold_isr": 137,
-                  "adc_isr_closed_loop": 602}
+                  "adc_isr_closed_loop": 602, "adc_isr_bridge": 346}
 #: Worst-case cycle bounds of each handler on Cortex-M cores, over the same drive shapes
 #: and script (tests/test_driver_qemu.py): arm-none-eabi-gcc 12.2 -Os builds run under
 #: QEMU 7.2 (mps2-an385: Cortex-M3, and the ARMv6-M code of the M0+; mps2-an386:
@@ -220,19 +225,19 @@ HANDLER_CYCLES = {"adc_isr": 340, "pwm_isr": 11, "tick": 692, "threshold_isr": 1
 #: figure exceeds its bound or all fall 10 % below it.
 CORTEX_CYCLES = {
     "cortex-m0plus": {"adc_isr": 324, "pwm_isr": 13, "tick": 525, "threshold_isr": 121,
-                      "adc_isr_closed_loop": 310},
+                      "adc_isr_closed_loop": 310, "adc_isr_bridge": 324},
     "cortex-m3": {"adc_isr": 305, "pwm_isr": 8, "tick": 509, "threshold_isr": 102,
-                  "adc_isr_closed_loop": 308},
+                  "adc_isr_closed_loop": 308, "adc_isr_bridge": 306},
     "cortex-m4": {"adc_isr": 305, "pwm_isr": 8, "tick": 509, "threshold_isr": 102,
-                  "adc_isr_closed_loop": 308},
+                  "adc_isr_closed_loop": 308, "adc_isr_bridge": 306},
 }
 CORTEX_INSTRUCTIONS = {
     "cortex-m0plus": {"adc_isr": 176, "pwm_isr": 4, "tick": 373, "threshold_isr": 63,
-                      "adc_isr_closed_loop": 165},
+                      "adc_isr_closed_loop": 165, "adc_isr_bridge": 176},
     "cortex-m3": {"adc_isr": 147, "pwm_isr": 2, "tick": 305, "threshold_isr": 53,
-                  "adc_isr_closed_loop": 148},
+                  "adc_isr_closed_loop": 148, "adc_isr_bridge": 148},
     "cortex-m4": {"adc_isr": 147, "pwm_isr": 2, "tick": 305, "threshold_isr": 53,
-                  "adc_isr_closed_loop": 148},
+                  "adc_isr_closed_loop": 148, "adc_isr_bridge": 148},
 }
 #: How each core's figures were had, for the printed timing line.
 _CYCLE_SOURCES = {
@@ -258,6 +263,8 @@ def budget_key(design: Design, handler: str) -> str:
     ADC handler runs the PI step (32-bit multiplies: slow on an 8-bit core) and has its own."""
     if handler == "adc_isr" and regulation_of(design) == "closed_loop":
         return "adc_isr_closed_loop"
+    if handler == "adc_isr" and design.topology is not None and design.topology.bridge is not None:
+        return "adc_isr_bridge"
     return handler
 
 

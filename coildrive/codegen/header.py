@@ -128,11 +128,13 @@ class HeaderView:
         self.bypass_constants = _bypass_constants(d, m)
         self.boost_constants = _boost_constants(d, m)
         self.topology_constants, self.topology = _topology_constants(d, m)
+        self.bridge_bits, self.bridge_phases = _bridge_constants(d, m)
         self.table = list(zip(d.duty_table.adc_codes, d.duty_table.compare_ticks, d.duty_table.supply_v))
         self.constants = _current_relabel_fallback(d, m, self.constants)
         self.current_constants = _current_header_constants(d, m)
         self.current_checks = (_current_header_checks(d, m) + _loop_header_checks(d, m)
-                               + _boost_header_checks(d, m))
+                               + _boost_header_checks(d, m)
+                               + _mixed_header_checks(d, m))
         self.current_summary = _current_header_summary(d) + _loop_header_summary(d)
         self.loop_constants = _loop_header_constants(d, m)
 
@@ -182,8 +184,51 @@ def _topology_constants(d: Design, m: str) -> tuple[list[Constant], str]:
     t = d.topology
     if t is None:
         return [], ""
-    return ([Constant(f"{m}_TOPOLOGY_{name.upper()}", number, f"switch topology: {name.replace('_', ' ')}")
-             for name, number in TOPOLOGY_NUMBERS.items()], f"{m}_TOPOLOGY_{t.name.upper()}")
+    out = [Constant(f"{m}_TOPOLOGY_{name.upper()}", number, f"switch topology: {name.replace('_', ' ')}")
+           for name, number in TOPOLOGY_NUMBERS.items()]
+    if t.bridge is not None and t.bridge.hold_decay == "mixed":
+        out.append(Constant(f"{m}_HOLD_FAST_Q16", round(t.bridge.hold_fast_fraction * 65536),
+                            f"mixed decay: fast counts of each off-time = ((PERIOD - compare) x this "
+                            f"+ 32768) >> 16 ({t.bridge.hold_fast_fraction:.4g} of it)"))
+    return out, f"{m}_TOPOLOGY_{t.name.upper()}"
+
+
+def _mixed_header_checks(d: Design, m: str) -> list[tuple[str, str]]:
+    """With mixed decay: its fraction within the off-time."""
+    t = d.topology
+    if t is None or t.bridge is None or t.bridge.hold_decay != "mixed":
+        return []
+    return [(f"{m}_HOLD_FAST_Q16 > 65536", "mixed decay: the fast part is longer than the off-time")]
+
+
+#: The bridge's switches: header name and what each is.
+BRIDGE_SWITCHES = {"high_a": ("HIGH_A", "Q1: leg A to the bus"), "low_a": ("LOW_A", "Q2: leg A to the rail"),
+                   "high_b": ("HIGH_B", "Q3: leg B to the bus"), "low_b": ("LOW_B", "Q4: leg B to the rail")}
+#: The bridge's phases: header name and what the phase does.
+BRIDGE_PHASES = {"peak": ("PEAK", "peak (PEAK_TICKS): the coil across the bus, A to B"),
+                 "hold_on": ("HOLD_ON", "hold on-time (HOLD_COMPARE_COUNTS of each period): as the peak"),
+                 "hold_decay": ("HOLD_DECAY", "hold off-time (the rest of the period): slow decay, "
+                                              "recirculating"),
+                 "release": ("RELEASE", "release and fault: all open, fast decay into the bus "
+                                        "(RELEASE_LOCKOUT_TICKS)")}
+
+
+def _bridge_constants(d: Design, m: str) -> tuple[list[Constant], list[Constant]]:
+    """A full bridge's switch bits and, per phase, the mask of the switches on (the
+    Design's ``topology.bridge.switches_on``); empty for one switch."""
+    b = None if d.topology is None else d.topology.bridge
+    if b is None:
+        return [], []
+    from ..model.bridge import SWITCHES, switch_mask  # the bit order
+    bits = [Constant(f"{m}_BRIDGE_{BRIDGE_SWITCHES[n][0]}", 1 << k, BRIDGE_SWITCHES[n][1])
+            for k, n in enumerate(SWITCHES)]
+    phases = []
+    for phase, names in b.switches_on.items():
+        mask = switch_mask(names)
+        on = " + ".join(BRIDGE_SWITCHES[n][1].split(":")[0] for n in names) or "none"
+        phases.append(Constant(f"{m}_BRIDGE_{BRIDGE_PHASES[phase][0]}_SWITCHES", mask,
+                               f"{on} on -- {BRIDGE_PHASES[phase][1]}"))
+    return bits, phases
 
 
 def _boost_constants(d: Design, m: str) -> list[Constant]:

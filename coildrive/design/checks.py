@@ -219,10 +219,14 @@ def cautions(drive: Drive, hold: HoldResult, release: ReleaseResult) -> list[str
         "rating at the highest actuation rate.",
         f"The coil settles at up to {hold.coil_temp_c:.0f} degC during a long hold; hot coils burn and "
         "insulation ages fast above its class rating.",
-        "These figures are a design aid, not a safety approval: for mains-connected or safety-relevant "
-        "equipment follow local codes and licensed practice.",
+        SAFETY_CAUTION,
     ]
     return out
+
+
+#: The caution every design ends with.
+SAFETY_CAUTION = ("These figures are a design aid, not a safety approval: for mains-connected or "
+                  "safety-relevant equipment follow local codes and licensed practice.")
 
 
 def loss_checks(drive: Drive, hold: HoldResult, loss: HoldLosses, grid: CornerGrid,

@@ -24,7 +24,14 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
 
     ``samples`` > 0 adds a tolerance Monte Carlo of that many points (see
     :func:`coildrive.design.montecarlo.monte_carlo`; voltage-mode holds only).
+    A latching coil (``[hold] mode = "latch"``) has no peak and hold: it is
+    :func:`coildrive.design.latch.design_latch`'s, which ``coildrive design`` and
+    ``simulate`` call; anything else asking for its Design is refused in one line.
     """
+    if drive.latch is not None:
+        raise InputError(drive.source, "hold.mode", "\"latch\": a latching coil is designed and "
+                         "simulated by coildrive design and coildrive simulate only; this command "
+                         "runs a peak-and-hold drive")
     out = strategy_for(drive).design(drive, samples, seed)
     if uses_datasheet(drive):
         sheet = datasheet_result(drive, out.release)
@@ -39,6 +46,8 @@ def _curve_range(drive: Drive, d: Design) -> Check:
     """A warning when the design's highest current (the over-current trip) lies past the
     flux-linkage table, where the curve goes on straight at its end slope."""
     top = drive.coil.flux_current[-1]
+    if drive.coil.seated_current:   # with [armature]: the shorter of the open and seated tables
+        top = min(top, drive.coil.seated_current[-1])
     highest = max(d.adc.trip_current_a, d.pull_in.peak_end_current_max_a)
     ok = highest <= top
     return Check("flux_curve_range", ok,

@@ -24,11 +24,14 @@ class CornerGrid:
 
     def label(self, k: int) -> str:
         """Short human label of corner ``k``, e.g. ``"20 V, 50 degC, R+7%, L+15%"``."""
-        def tol(name: str, f: float) -> str:
-            pct = (f - 1.0) * 100.0
-            return f"{name}{pct:+.3g}%" if abs(pct) > 1e-9 else f"{name} nom"
         return (f"{self.supply[k]:g} V, {self.ambient[k]:g} degC, "
-                f"{tol('R', self.r_factor[k])}, {tol('L', self.l_factor[k])}")
+                f"{tolerance_label('R', self.r_factor[k])}, {tolerance_label('L', self.l_factor[k])}")
+
+
+def tolerance_label(name: str, factor: float) -> str:
+    """``"R+7%"`` for a factor of 1.07, ``"R nom"`` for 1."""
+    pct = (factor - 1.0) * 100.0
+    return f"{name}{pct:+.3g}%" if abs(pct) > 1e-9 else f"{name} nom"
 
 
 def _axis(*values: float) -> list[float]:

@@ -17,7 +17,7 @@ import numpy as np
 
 from ..config import Drive
 from ..model.circuit import Loop, freewheel_element_energy, loop, two_paths
-from ..model.pwm import PwmSteadyState, duty_for_mean, pwm_steady_state
+from ..model.pwm import PwmSteadyState, duty_for_mean, coil_heat, pwm_steady_state
 from ..model.rl import decay_current, decay_integrals, decay_time
 from ..model.thermal import settle_temperature
 from .supply import rise_current as bus_rise_current
@@ -32,8 +32,9 @@ def hold_power(drive: Drive, supply, r_factor, l_factor, duty, frequency, factor
 
     def power_at(temp):
         lp = loop(drive, supply, temp, r_factor, l_factor, **factors)
-        ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
-        return ss.rms**2 * lp.r_coil
+        ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance,
+                              mixed=lp.mixed)
+        return coil_heat(ss, lp.r_coil)
     return power_at
 
 
@@ -61,7 +62,8 @@ def required_duty(drive: Drive, supply, ambient, r_factor, l_factor, frequency,
     for _ in range(max_iter):
         lp = loop(drive, supply, np.where(np.isfinite(temp), temp, drive.thermal.max_coil_temp),
                   r_factor, l_factor)
-        need = duty_for_mean(target, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
+        need = duty_for_mean(target, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance,
+                             mixed=lp.mixed)
         if np.any(np.isnan(need)):
             return float("nan"), temp
         new = float(np.max(need))
@@ -140,7 +142,6 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
 
     from ..model.armature import hold_force_current, params_from_loop
     from ..model.armature_runs import late_release, peak_current_closed_form, pull_in, release
-    from ..model.magnet import stroke_current
 
     shape = np.shape(lp.v_on)
     fields = ("v_on", "r_on", "r_off", "v_off", "inductance", "r_coil", "supply")
@@ -153,8 +154,7 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
     lag = max(-drive.freewheel.bypass_lead, 0.0) if p_rel is not p else 0.0
     want = np.ravel(np.broadcast_to(peak_time, shape))
     pin = rel = None
-    if reuse is not None and all(np.array_equal(getattr(p, f), getattr(reuse.params, f))
-                                 for f in p.__dataclass_fields__):
+    if reuse is not None and p.same_points(reuse.params):
         # Same points and coil temperatures: the runs do not depend on the peak length.
         i_peak = peak_current_closed_form(p, reuse.pull_in, want)
         if i_peak is not None and np.array_equal(np.ravel(ss.i_max), reuse.release_from):
@@ -164,7 +164,7 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
         pin = pull_in(p, peak_time=want)
         rel = (late_release(p, p_rel, np.ravel(ss.i_max), lag) if lag > 0 else
                release(p_rel, np.ravel(ss.i_max)))
-    through, gap = stroke_current(p.l_closed, p.beta, p.stroke, p.preload, p.rate, p.load)
+    through, gap = p.stroke_current()
     held, lift = hold_force_current(p, np.ravel(ss.i_min), np.ravel(ss.rms), np.ravel(ss.period))
     return ArmatureFigures(params=p, pull_in=pin, release=rel, start_current=p.start_current,
                            stay_current=p.stay_current, stroke_current=np.atleast_1d(through),
@@ -209,8 +209,9 @@ def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
     lp = loop(drive, supply, finite, r_factor, l_factor, **factors)
     t_pull = bus_rise_time(drive, lp, drive.pull_in.current, lp.inductance)
     i_peak = bus_rise_current(drive, lp, peak_time, lp.inductance)
-    ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
-    power = ss.rms**2 * lp.r_coil
+    ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance,
+                          mixed=lp.mixed)
+    power = coil_heat(ss, lp.r_coil)
     i_off = ss.i_max
     lp_rel = (loop(drive, supply, finite, r_factor, l_factor, path="release", **factors)
               if two_paths(drive) else lp)
@@ -252,6 +253,8 @@ def switch_voltage_peak(drive: Drive, lp: Loop, lp_rel: Loop, i_peak, i_max, i_f
     which takes over at ``i_fast`` A (see :func:`release_figures`)."""
     interrupt = np.maximum(i_peak, i_max)
     v_sw = lp.switch_voltage(drive, interrupt)
+    if lp.mixed is not None:  # mixed decay: every off-time (the peak's end too) starts fast
+        v_sw = np.maximum(v_sw, lp_rel.switch_voltage(drive, interrupt))
     if lp_rel is not lp:
         v_sw = np.maximum(v_sw, lp_rel.switch_voltage(drive, i_fast))
     return interrupt, v_sw

@@ -50,7 +50,7 @@ from .diagnostics import rise_check, seat_check
 from .thermal_cycle import refuse_cycle
 from .topology import topology_cautions, topology_result
 from .result import Check, ClosedLoopResult, Design, DutyTable, HoldResult, TimerResult
-from .timer import solve_timer
+from .timer import timer_for
 from .turnoff import turn_offs
 
 def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
@@ -68,8 +68,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                          "for the fixed and supply-table holds; leave it out with regulation = "
                          "\"closed_loop\"")
     board = drive.board
-    timer = solve_timer(board.timer.clock, board.timer.bits, board.timer.prescaler_max,
-                        drive.hold.frequency, drive.hold.frequency_tolerance, board.timer.prescalers)
+    timer = timer_for(drive)
     f = timer.frequency_hz
     period = timer.period_ticks
     switch_leg = board.sense.position == "switch"

@@ -59,7 +59,7 @@ from .peak import plan_peak, shortest_peak_current
 from .turnoff import turn_offs
 from .result import Check, CurrentModeResult, Design, HoldResult, Thresholds
 from .thermal_cycle import refuse_cycle
-from .timer import solve_timer
+from .timer import solve_timer, timer_for
 from .topology import topology_cautions, topology_result
 
 #: Upper end of the allowed switching range when neither ``hold.max_frequency`` nor the
@@ -338,8 +338,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     release = release_result(drive, grid, res, offs)
     pull_in = pull_in_result(drive, grid, res, pk, shortest_peak_current(drive, res, pk.short_time))
 
-    setting = solve_timer(board.timer.clock, board.timer.bits, board.timer.prescaler_max,
-                          drive.hold.frequency, drive.hold.frequency_tolerance, board.timer.prescalers)
+    setting = timer_for(drive)
     base = base_checks(drive, grid, res, pull_in, hold, release, fallback.timer, thresholds, setting)
     old = {c.name: c for c in fallback.checks}
     voltage_only = ("timer_frequency", "duty_range", "duty_resolution")

@@ -36,6 +36,7 @@ from .corners import nominal_point
 from .envelope import supply_codes
 from .evaluate import PointResults, evaluate
 from .firmware import firmware_arrays, firmware_setting
+from .eddy import eddy_result
 from .figures import (ASSUMED_DIODE_DROP, adc_code, adc_thresholds, corners_of, hold_spread,
                       loss_figures, path_name, pull_in_result, release_result, slow_hold_drive,
                       worst)
@@ -46,7 +47,7 @@ from .result import ActuationPoint, Design, DutyTable, HoldResult, SplitDecayRes
 from .supply import steady_current, supply_checks, supply_result
 from .thermal_cycle import (cycle_caution, cycling, thermal_cautions, thermal_checks,
                             thermal_result)
-from .timer import TimerSetting, solve_timer
+from .timer import TimerSetting, timer_for
 from .topology import bridge_checks, pumped_release, topology_cautions, topology_result
 from .turnoff import turn_offs
 
@@ -65,9 +66,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     if samples > 0 and drive.supply.boosted:
         raise InputError(drive.source, "supply.boost", "the tolerance Monte Carlo does not model the "
                          "boosted peak yet: expected no --monte-carlo with supply.boost")
-    timer = solve_timer(board.timer.clock, board.timer.bits, board.timer.prescaler_max,
-                        drive.hold.frequency, drive.hold.frequency_tolerance,
-                        board.timer.prescalers)
+    timer = timer_for(drive)
     f_hold = timer.frequency_hz
     period = timer.period_ticks
     # With an on/off cycle the peak heats the coil too: the hold and the peak are solved
@@ -122,7 +121,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
 
     up = np.minimum(plan.compare_low + 1, period)
     step = pwm_steady_state(up / period, f_hold, res_low.loop.v_on, res_low.loop.r_on,
-                            res_low.loop.r_off, res_low.loop.v_off, res_low.loop.inductance).mean - res_low.hold.mean
+                            res_low.loop.r_off, res_low.loop.v_off, res_low.loop.inductance,
+                            mixed=res_low.loop.mixed).mean - res_low.hold.mean
     k_hot = int(np.argmax(np.where(np.isfinite(plan.hot_temp), plan.hot_temp, np.inf)))
     k_heat = int(plan.hot_point[k_hot])
     spread = hold_spread(env, res_low)
@@ -184,7 +184,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                  split_decay=split, actuation_points=points, peak_table=pk.table,
                  thermal_cycle=thermal, topology=topo, supply=sup, boost=boost,
                  rise_check=rise_check(drive, env, res, f_hold),
-                 seat_check=seat_check(drive, env, res_low))
+                 seat_check=seat_check(drive, env, res_low), eddy=eddy_result(drive, env, res))
     if samples > 0:
         from .montecarlo import monte_carlo
 

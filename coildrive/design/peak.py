@@ -29,6 +29,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..config import Drive
+from ..model.circuit import open_inductance
 from .corners import CornerGrid
 from .evaluate import PointResults
 from .figures import worst
@@ -72,20 +73,22 @@ def force_times(drive: Drive, res: PointResults) -> tuple[np.ndarray, float]:
     :mod:`coildrive.design.supply`'s."""
     lp = res.loop
     i_force = drive.pull_in.current_margin * drive.pull_in.current
-    ind = lp.inductance
-    if drive.armature is not None:
-        ind = drive.armature.inductance_open * res.l_factor
+    ind = lp.inductance if drive.armature is None else open_inductance(drive, res.l_factor)
     return rise_time(drive, lp, i_force, ind), i_force
 
 
-def requirement(drive: Drive, t_pull: np.ndarray, t_force: np.ndarray) -> tuple[int | None, int | None, int | None]:
+def requirement(drive: Drive, t_pull: np.ndarray, t_force: np.ndarray, margin: float | None = None,
+                settle: float | None = None) -> tuple[int | None, int | None, int | None]:
     """``(ticks, time-margin ticks, force-margin ticks)`` for pull-in times and force
-    times over points (their worst)."""
+    times over points (their worst); ``margin`` and ``settle`` (s) replace
+    ``pull_in.margin`` and ``pull_in.settle_time`` (a latching coil's reset pulse)."""
     rate = drive.board.tick.rate
+    margin = drive.pull_in.margin if margin is None else margin
+    settle = drive.pull_in.settle_time if settle is None else settle
     tp = float(np.max(np.where(np.isnan(t_pull), np.inf, t_pull)))
     tf = float(np.max(np.where(np.isnan(t_force), np.inf, t_force)))
-    by_time = _ticks(tp * drive.pull_in.margin, rate)
-    by_force = _ticks(tf + drive.pull_in.settle_time, rate)
+    by_time = _ticks(tp * margin, rate)
+    by_force = _ticks(tf + settle, rate)
     if by_time is None:
         return None, None, by_force
     return max(by_time, by_force or 0), by_time, by_force
@@ -162,5 +165,5 @@ def shortest_peak_current(drive: Drive, res: PointResults, short_time: np.ndarra
     """Current (A) at the end of the shortest real peak at each point (plain RL rise; with
     an armature the open inductance, before it moves)."""
     lp = res.loop
-    ind = lp.inductance if drive.armature is None else drive.armature.inductance_open * res.l_factor
+    ind = lp.inductance if drive.armature is None else open_inductance(drive, res.l_factor)
     return rise_current(drive, lp, short_time, ind)

@@ -51,6 +51,9 @@ def _plot(d: Design, waveforms: dict, phases: str, title: str, velocity: bool = 
     colours = {"nominal": "tab:blue", "worst": "tab:red", "simulated": "tab:blue"}
     for key, w in waveforms.items():
         ax.plot(w.time * 1e3, w.current, lw=0.9, color=colours.get(key), label=w.label)
+        if w.magnetising_current is not None:   # an eddy term: the flux's current too
+            ax.plot(w.time * 1e3, w.magnetising_current, lw=1.4, ls="--", color="k" if key == "simulated"
+                    else colours.get(key), alpha=0.9, label=f"{key}: magnetising current (the flux)")
     w = waveforms[phases]
     ev = w.events
     split = w.bypass_on is not None

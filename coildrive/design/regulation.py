@@ -27,7 +27,7 @@ import numpy as np
 
 from ..config import Drive
 from ..model.circuit import loop
-from ..model.pwm import duty_for_mean, pwm_steady_state
+from ..model.pwm import duty_for_mean, coil_heat, pwm_steady_state
 from .envelope import (Envelope, HeatingGrid, Tolerances, bracket_tops, envelope, heating_grid,
                        hottest, lowest_supply_for_code, supply_codes, table_index, tolerances)
 from .evaluate import hold_temperature
@@ -125,7 +125,8 @@ def solve_hold(drive: Drive, timer: TimerSetting, peak_time: float = 0.0) -> Hol
             lp = loop(drive, design_v[:, None] + 0.0 * hot[None, :], _finite(drive, hot)[None, :],
                       tol.r_factor[None, :], tol.l_factor[None, :],
                       **{k: v[None, :] for k, v in _factors(tol).items()})
-            need = duty_for_mean(target, f, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
+            need = duty_for_mean(target, f, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance,
+                                 mixed=lp.mixed)
             reachable = not bool(np.any(np.isnan(need)))
             worst = np.where(np.any(np.isnan(need), axis=1), 1.0,
                              np.nanmax(np.nan_to_num(need, nan=1.0), axis=1))
@@ -152,7 +153,8 @@ def solve_hold(drive: Drive, timer: TimerSetting, peak_time: float = 0.0) -> Hol
             env = envelope(drive, tol, hot)
             lp = loop(drive, env.supply, _finite(drive, env.coil_temp), env.r_factor, env.l_factor,
                       **env.factors())
-            need = duty_for_mean(target, f, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
+            need = duty_for_mean(target, f, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance,
+                                 mixed=lp.mixed)
             if np.any(np.isnan(need)):
                 reachable, duty = False, 1.0
                 temps, hot, where = _heat(drive, heat, duty, f, n, peak_time)
@@ -173,7 +175,7 @@ def solve_hold(drive: Drive, timer: TimerSetting, peak_time: float = 0.0) -> Hol
             lp = loop(drive, env2.supply, _finite(drive, env2.coil_temp), env2.r_factor,
                       env2.l_factor, **env2.factors())
             mean = pwm_steady_state(fixed / period, f, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
-                                    lp.inductance).mean
+                                    lp.inductance, mixed=lp.mixed).mean
             hot, where = np.maximum(hot2, drive.ambient.max), where2
             if np.min(mean) >= target:
                 break
@@ -203,7 +205,7 @@ def _monotone(drive: Drive, tol: Tolerances, hot: np.ndarray, design_v: np.ndarr
     def mean(i: int, c: int) -> np.ndarray:
         lp = loop(drive, design_v[i] + 0.0 * temps, temps, t.r_factor, t.l_factor, **_factors(t))
         return pwm_steady_state(c / period, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
-                                lp.inductance).mean
+                                lp.inductance, mixed=lp.mixed).mean
     below = mean(0, int(out[0]))
     for i in range(1, len(out)):
         here = mean(i, int(out[i]))
@@ -237,5 +239,5 @@ def coil_power_at(drive: Drive, plan: HoldPlan, k: int, frequency: float, period
     tk = heat.tol.take([k])
     lp = loop(drive, heat.supply[k:k + 1], temp, tk.r_factor, tk.l_factor, **_factors(tk))
     ss = pwm_steady_state(plan.heat_compare[k] / period, frequency, lp.v_on, lp.r_on, lp.r_off,
-                          lp.v_off, lp.inductance)
-    return float((ss.rms**2 * lp.r_coil)[0])
+                          lp.v_off, lp.inductance, mixed=lp.mixed)
+    return float(coil_heat(ss, lp.r_coil)[0])

@@ -43,6 +43,7 @@ def summary_table(d: Design) -> Table:
         *_loss_rows(d),
         ("release time", _ms(r.time_s), f"to {r.dropout_current_a:.4g} A via {r.freewheel}; zero after {_ms(r.zero_time_s)}"),
         *_turn_off_rows(d),
+        *_eddy_rows(d),
         ("peak switch voltage", f"{r.peak_switch_voltage_v:.4g} V",
          f"every turn-off; limit {r.switch_limit_v:.4g} V ({r.switch_rating_v:.4g} V rating, derated)"),
         ("ADC thresholds", f"{a.pull_in_code}/{a.hold_code}/{a.over_current_code}/{a.open_load_code}",
@@ -63,12 +64,20 @@ def _topology_rows(d: Design) -> list:
         return []
     b = t.bridge
     if b is not None:
+        if b.hold_decay == "mixed":
+            hold = (f"mixed decay ({b.hold_fast_fraction:.0%} of each off-time fast, the rest slow "
+                    "through two low-side switches)")
+            period = (f"per hold period {b.returned_per_hold_period_j * 1e6:.4g} uJ "
+                      f"({b.hold_period_corner})")
+        else:
+            hold = "slow decay (two low-side switches)"
+            period = f"per hold period {b.returned_per_hold_period_j:g} J (slow decay)"
         rows = [("switch topology", "full bridge",
-                 f"sense {t.sense_place}; hold: slow decay (two low-side switches), release: fast "
+                 f"sense {t.sense_place}; hold: {hold}, release: fast "
                  "decay (body diodes into the supply)"),
                 ("energy back to the supply", f"{b.returned_per_release_j * 1e3:.4g} mJ",
                  f"per release ({b.release_corner}); up to {b.returned_worst_j * 1e3:.4g} mJ at the "
-                 f"{b.worst_event}; per hold period {b.returned_per_hold_period_j:g} J (slow decay)")]
+                 f"{b.worst_event}; {period}")]
         if not b.sink:
             rows.append(("bus pump-up", f"+{b.pump_up_v:.4g} V",
                          f"to {b.pumped_bus_v:.4g} V on {b.capacitance_f * 1e6:.4g} uF ({b.pump_event}, "
@@ -193,6 +202,24 @@ def _regulation_how(d: Design) -> str:
         return (f"PI loop on the current sampled in the {h.closed_loop.sample_point}, once a PWM "
                 "period (table below)")
     return "one compare value at every supply"
+
+
+def _eddy_rows(d: Design) -> list:
+    """The eddy-current term: its step, where the release stops conducting, its energy."""
+    e = d.eddy
+    if e is None:
+        return []
+    src = ("" if e.given == "coil.eddy_resistance" else
+           f" (L / {format_si(e.time_constant_s, 's')}, {e.given})")
+    return [("eddy resistance", format_si(e.resistance_ohm, "ohm", 4),
+             f"across the magnetising branch{src}; tau = L / R_e = {format_si(e.time_constant_s, 's')}"),
+            ("switch-on step", f"{e.switch_on_step_a:.4g} A", f"V / (R_on + R_e) at {e.step_corner}"),
+            ("eddy energy: release", format_si(e.release_eddy_energy_j, "J"),
+             f"beside {format_si(e.release_freewheel_energy_j, 'J')} in the freewheel path at "
+             f"{e.release_corner}; the path stops conducting below {e.block_current_a:.4g} A of "
+             f"magnetising current, the flux reaches drop-out up to {_ms(e.flux_outlasts_s)} later"),
+            ("eddy power: hold", f"{e.hold_eddy_power_w:.3g} W",
+             f"in the core (part of the coil power) at {e.hold_corner}")]
 
 
 def _turn_off_rows(d: Design) -> list:

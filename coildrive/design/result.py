@@ -365,17 +365,53 @@ class ReleaseResult:
 
 
 @dataclass(frozen=True)
+class EddyResult:
+    """The eddy-current term (``design --json`` key ``eddy``; docs/coil-model.md).
+
+    ``resistance_ohm`` across the magnetising branch, ``time_constant_s`` its ``L / R_e``
+    with the small-signal inductance, ``given`` the file key it came from.
+    ``switch_on_step_a``: the terminal current's step at switch-on, ``V / (R_on + R_e)``,
+    at its highest corner (``step_corner``). ``block_current_a``: the magnetising current
+    at which the release path stops conducting (``V_off / R_e``; the flux then dies
+    through ``R_e``), its highest. ``release_eddy_energy_j``: the eddy resistance's share
+    of the release from the top of the hold ripple, at its worst corner
+    (``release_corner``), beside ``release_freewheel_energy_j``, the freewheel elements'
+    there. ``flux_outlasts_s``: how much longer the flux takes to fall to the drop-out
+    current than the terminal current takes to reach zero (0 when it does not).
+    ``hold_eddy_power_w``: the eddy resistance's power in the hold, at its worst corner
+    (``hold_corner``)."""
+
+    resistance_ohm: float
+    time_constant_s: float
+    given: str
+    switch_on_step_a: float
+    step_corner: str
+    block_current_a: float
+    release_eddy_energy_j: float
+    release_freewheel_energy_j: float
+    release_corner: str
+    flux_outlasts_s: float
+    hold_eddy_power_w: float
+    hold_corner: str
+
+
+@dataclass(frozen=True)
 class BridgeResult:
     """A full bridge's decay paths and the energy its fast decay returns to the supply
     (``design --json`` key ``topology.bridge``). Energies in J, voltages in V.
 
     ``returned_per_release_j``: back to the bus at the release from the top of the hold
     ripple (its worst corner ``release_corner``); ``returned_worst_j`` over every turn-off
-    (``worst_event``, ``worst_corner``); ``returned_per_hold_period_j``: 0, the hold's
-    off-times decay slowly and return nothing. With ``sink`` false the returned charge
+    (``worst_event``, ``worst_corner``); ``returned_per_hold_period_j``: 0 when the hold's
+    off-times decay slowly (``hold_decay`` ``"slow"``) and return nothing; with mixed decay
+    (``hold_decay`` ``"mixed"``, ``hold_fast_fraction`` of each off-time fast) the most the
+    fast parts return in one PWM period, at ``hold_period_corner``. With ``sink`` false the returned charge
     lands on ``capacitance_f``: the bus rises from the supply to ``pumped_bus_v`` (the
     highest over every turn-off and corner, ``pump_event``, ``pump_corner``; ``pump_up_v``
     its rise there), and the switches see up to ``pumped_switch_voltage_v``.
+    ``switches_on`` names the switches on in each phase (``peak``, ``hold_on``,
+    ``hold_decay``, ``release``; :data:`coildrive.model.bridge.PHASES`): what the header
+    and the reference driver switch.
     """
 
     hold_decay: str
@@ -394,6 +430,9 @@ class BridgeResult:
     pump_event: str | None = None
     pump_corner: str | None = None
     pumped_switch_voltage_v: float | None = None
+    switches_on: dict[str, list[str]] = field(default_factory=dict)
+    hold_fast_fraction: float | None = None
+    hold_period_corner: str | None = None
 
 
 @dataclass(frozen=True)
@@ -639,8 +678,23 @@ class ThermalCycleResult:
     warm_start: dict | None
 
 
+class Verdict:
+    """A design's verdict from its ``checks`` (a list of :class:`Check`)."""
+
+    checks: list[Check]
+
+    @property
+    def ok(self) -> bool:
+        """True when no error-severity check failed."""
+        return all(c.ok for c in self.checks if c.severity == "error")
+
+    @property
+    def failed(self) -> list[Check]:
+        return [c for c in self.checks if not c.ok and c.severity == "error"]
+
+
 @dataclass(frozen=True)
-class Design:
+class Design(Verdict):
     """One design result: every output (table, JSON, header, plot) is made from this."""
 
     drive: Drive
@@ -670,14 +724,7 @@ class Design:
     supply: SupplyResult | None = None
     boost: BoostResult | None = None
 
-    @property
-    def ok(self) -> bool:
-        """True when no error-severity check failed."""
-        return all(c.ok for c in self.checks if c.severity == "error")
-
-    @property
-    def failed(self) -> list[Check]:
-        return [c for c in self.checks if not c.ok and c.severity == "error"]
+    eddy: EddyResult | None = None
 
     def to_dict(self) -> dict:
         """Plain JSON-ready dict (the ``design --json`` document)."""
@@ -704,6 +751,10 @@ class Design:
             topo = asdict(self.topology)
             if topo["bridge"] is None:
                 del topo["bridge"]
+            else:   # mixed decay's keys only where it is used (older outputs keep their bytes)
+                for key in ("hold_fast_fraction", "hold_period_corner"):
+                    if topo["bridge"][key] is None:
+                        del topo["bridge"][key]
             out["topology"] = topo
         if self.supply is not None:
             out["supply"] = asdict(self.supply)
@@ -729,6 +780,8 @@ class Design:
             out["rise_check"] = asdict(self.rise_check)
         if self.seat_check is not None:
             out["seat_check"] = asdict(self.seat_check)
+        if self.eddy is not None:
+            out["eddy"] = asdict(self.eddy)
         return json_ready(out)
 
 
@@ -756,3 +809,76 @@ class ActuationPoint:
     r_factor: float
     l_factor: float
     hold_time_s: float
+
+
+@dataclass(frozen=True)
+class SystemChannel:
+    """One channel of a system: its name (the header prefix in capitals), the board's
+    channel number, its drive file, its peak's start after the first channel's
+    (``offset_ticks`` scheduler ticks, ``offset_s`` s; ``offset_fixed``: the system file
+    gave it), the figures its rail-current bound reads (``bound``, SI, see
+    :func:`coildrive.design.system.draw_bound`) and its Design."""
+
+    name: str
+    number: int
+    drive_file: str
+    offset_ticks: int
+    offset_s: float
+    offset_fixed: bool
+    bound: dict
+    design: Design
+
+
+@dataclass(frozen=True)
+class SystemResult:
+    """Several channels on one board designed together (:mod:`coildrive.design.system`;
+    ``design --json`` key ``system``). ``current_limit_a`` (0: not given) and the least
+    ``stagger_ticks`` between the peaks that keeps every rail within it (``stagger_search``
+    says how it was found); ``timers``: each shared timer (its channels, prescaler, period,
+    frequency, each channel's compare); ``rails``: each shared supply rail (its channels,
+    the bound of their current with the peaks together and staggered, the holds' average
+    current, and with a source resistance the lowest bus together and staggered);
+    ``heat``: W per channel, in each shared freewheel part and on the board; the channels
+    in file order; the system's own checks (each channel's are in its Design)."""
+
+    name: str
+    source: str
+    board: str
+    current_limit_a: float
+    stagger_ticks: int
+    stagger_search: str
+    timers: list
+    rails: list
+    heat: dict
+    channels: list
+    checks: list
+
+    @property
+    def ok(self) -> bool:
+        return (all(c.ok for c in self.checks if c.severity == "error")
+                and all(ch.design.ok for ch in self.channels))
+
+    @property
+    def failed(self) -> list[str]:
+        """Failed checks, channel ones as ``name.check``."""
+        return ([c.name for c in self.checks if not c.ok and c.severity == "error"]
+                + [f"{ch.name}.{c.name}" for ch in self.channels for c in ch.design.failed])
+
+    def to_dict(self) -> dict:
+        """The ``design --json`` document of a system file: ``{"ok", "system": {...}}``."""
+        return json_ready({
+            "ok": self.ok,
+            "version": __version__,
+            "system": {
+                "name": self.name, "file": self.source, "board": self.board,
+                "current_limit_a": self.current_limit_a, "stagger_ticks": self.stagger_ticks,
+                "stagger_search": self.stagger_search,
+                "tick_rate_hz": self.channels[0].design.drive.board.tick.rate,
+                "timers": self.timers, "rails": self.rails, "heat": self.heat,
+                "checks": [asdict(c) for c in self.checks],
+                "channels": [{"name": c.name, "board_channel": c.number, "drive_file": c.drive_file,
+                              "offset_ticks": c.offset_ticks, "offset_s": c.offset_s,
+                              "offset_fixed": c.offset_fixed, "bound": c.bound,
+                              "design": c.design.to_dict()} for c in self.channels],
+            },
+        })

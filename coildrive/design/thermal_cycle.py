@@ -75,7 +75,8 @@ def on_energies(drive: Drive, supply, r_factor, l_factor, duty, frequency, facto
 
     def at(temp):
         lp = loop(drive, supply, temp, r_factor, l_factor, **factors)
-        ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
+        ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance,
+                              mixed=lp.mixed)
         _, s_pk = rise_integrals(t_pk, 0.0, lp.v_on, lp.r_on, peak_inductance(drive, lp))
         # a full bridge's hold path (slow decay, no opposing voltage) never brings the
         # current to zero: its release is the fast decay into the bus

@@ -60,3 +60,16 @@ def solve_timer(clock: float, bits: int, prescaler_max: int, target: float,
     else:
         best = int(np.argmin(error))
     return TimerSetting(int(prescalers[best]), int(periods[best]), float(actual[best]), float(target))
+
+
+def timer_for(drive) -> TimerSetting:
+    """The hold timer of ``drive`` (a :class:`~coildrive.config.Drive`): the shared timer's
+    prescaler and period when a system file fixes them (``drive.shared_timer``, see
+    :mod:`coildrive.design.system`), else :func:`solve_timer` for ``hold.frequency``.
+    ``target_hz`` stays the drive's asked frequency either way."""
+    t = drive.board.timer
+    if drive.shared_timer is not None:
+        p, n = drive.shared_timer
+        return TimerSetting(int(p), int(n), t.clock / (p * n), drive.hold.frequency)
+    return solve_timer(t.clock, t.bits, t.prescaler_max, drive.hold.frequency,
+                       drive.hold.frequency_tolerance, t.prescalers)

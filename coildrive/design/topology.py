@@ -17,7 +17,7 @@ import dataclasses
 import numpy as np
 
 from ..config import Drive
-from ..model.bridge import pump_up
+from ..model.bridge import PHASES, pump_up
 from ..model.circuit import full_bridge
 from ..model.rl import decay_integrals, decay_time
 from ..model.topology import topology_of
@@ -80,7 +80,13 @@ def bridge_result(drive: Drive, grid: CornerGrid, res: PointResults, peak_end,
                returned_per_release_j=float(returned["end of hold"][k_rel]), release_corner=grid.label(k_rel),
                returned_worst_j=float(returned[worst_event][k_w]), worst_event=worst_event,
                worst_corner=grid.label(k_w), returned_per_hold_period_j=0.0, sink=sup.sink,
-               capacitance_f=sup.capacitance, capacitor_rating_v=sup.capacitor_voltage)
+               capacitance_f=sup.capacitance, capacitor_rating_v=sup.capacitor_voltage,
+               switches_on={phase: list(names) for phase, names in PHASES.items()})
+    if res.loop.mixed is not None:  # the fast part of every off-time returns V_bus x its charge
+        per_period = supply * np.asarray(res.hold.charge_fast, float)
+        k_h = worst(per_period)
+        out.update(hold_decay="mixed", returned_per_hold_period_j=float(per_period[k_h]),
+                   hold_fast_fraction=drive.hold.fast_fraction, hold_period_corner=grid.label(k_h))
     if not sup.sink:
         pumps = {event: pump_up(i, supply, sup.capacitance, lp.r_off, lp.inductance, lp.diode(drive))
                  for event, i in currents.items()}

@@ -35,11 +35,17 @@ Units: SI throughout (V, A, ohm, H, m, kg, N, s).
 
 from __future__ import annotations
 
+import dataclasses
+import functools
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
-from .magnet import fit_gap, stay_current, start_current
+from .magnet import fit_gap, start_current, stay_current, stroke_current
+
+if TYPE_CHECKING:
+    from .gap_curves import GapCurves
 
 #: Bouncing on the seat ends when the rebound speed is below this fraction of the first
 #: impact speed (the rebound then carries under 1e-6 of the impact energy).
@@ -82,49 +88,110 @@ class ArmatureParams:
     load: np.ndarray
     damping: np.ndarray
     restitution: np.ndarray
+    #: A saturating coil's open and seated curves (:mod:`coildrive.model.gap_curves`);
+    #: ``None``: the linear ``L(x)``. With curves ``l_closed`` and ``beta`` are the
+    #: small-signal values (time scales and error control only).
+    curves: "GapCurves | None" = None
 
     @staticmethod
-    def make(**values) -> "ArmatureParams":
+    def make(curves: "GapCurves | None" = None, **values) -> "ArmatureParams":
         """Broadcast keyword values (floats or arrays) to 1-D arrays of one length."""
-        names = [f.name for f in ArmatureParams.__dataclass_fields__.values()]
+        names = [f.name for f in ArmatureParams.__dataclass_fields__.values() if f.name != "curves"]
         unknown = set(values) - set(names)
         if unknown:
             raise TypeError(f"unknown armature parameter(s): {', '.join(sorted(unknown))}")
         arrays = np.broadcast_arrays(*(np.atleast_1d(np.asarray(values[n], float)) for n in names))
-        return ArmatureParams(**{n: np.array(a, float).ravel() for n, a in zip(names, arrays)})
+        return ArmatureParams(**{n: np.array(a, float).ravel() for n, a in zip(names, arrays)},
+                              curves=curves)
+
+    @property
+    def arrays(self) -> tuple[str, ...]:
+        """The names of the per-point array fields (all but ``curves``)."""
+        return tuple(n for n in self.__dataclass_fields__ if n != "curves")
 
     def __len__(self) -> int:
         return self.v_on.size
 
+    def same_points(self, other: "ArmatureParams") -> bool:
+        """Whether ``other`` holds the same points (every array, and the same curves)."""
+        a, b = self.curves, other.curves
+        if (a is None) != (b is None) or (a is not None and not (
+                a.open is b.open and a.seated is b.seated and np.array_equal(a.scale, b.scale))):
+            return False
+        return all(np.array_equal(getattr(self, f), getattr(other, f)) for f in self.arrays)
+
     def take(self, k) -> "ArmatureParams":
         """The parameters of point(s) ``k`` (an index, slice or mask)."""
-        return ArmatureParams(**{n: np.atleast_1d(getattr(self, n)[k])
-                                 for n in self.__dataclass_fields__})
+        return ArmatureParams(**{n: np.atleast_1d(getattr(self, n)[k]) for n in self.arrays},
+                              curves=None if self.curves is None else self.curves[k])
 
     @property
     def l_open(self) -> np.ndarray:
-        """Inductance at the open stop in H."""
+        """Inductance at the open stop in H (small-signal with curves)."""
         return self.l_closed / (1.0 + self.beta * self.stroke)
 
     @property
+    def coil_open(self):
+        """The open coil for the closed-form segments (:mod:`coildrive.model.rl`): H, or
+        the open curve's :class:`~coildrive.model.flux.FluxCoil`."""
+        return self.l_open if self.curves is None else self.curves.coil_open
+
+    @property
+    def coil_closed(self):
+        """The seated coil for the closed-form segments: H, or the seated curve's coil."""
+        return self.l_closed if self.curves is None else self.curves.coil_seated
+
+    def flux_open(self, i) -> np.ndarray:
+        """Flux linkage Wb at ``i`` A on the open stop."""
+        return self.l_open * i if self.curves is None else self.curves.flux_open(i)
+
+    def flux_closed(self, i) -> np.ndarray:
+        """Flux linkage Wb at ``i`` A on the seat."""
+        return self.l_closed * i if self.curves is None else self.curves.flux_seated(i)
+
+    @functools.cached_property
     def start_current(self) -> np.ndarray:
         """Least current in A that starts the armature off the open stop."""
+        if self.curves is not None:
+            return self.curves.balance_current(self.stroke, self.opening_force(self.stroke))
         return np.atleast_1d(start_current(self.l_closed, self.beta, self.stroke, self.preload,
                                            self.rate, self.load))
 
-    @property
+    @functools.cached_property
     def stay_current(self) -> np.ndarray:
         """Least current in A that keeps the armature seated (its drop-out current)."""
+        if self.curves is not None:
+            return self.curves.balance_current(0.0, self.opening_force(0.0))
         return np.atleast_1d(stay_current(self.l_closed, self.beta, self.stroke, self.preload,
                                           self.rate, self.load))
 
+    def stroke_current(self):
+        """Least steady current A whose force beats spring + load over the whole stroke,
+        and the gap m where it is needed (:func:`coildrive.model.magnet.stroke_current`)."""
+        if self.curves is not None:
+            return self.curves.stroke_current(self.opening_force)
+        cur, gap = stroke_current(self.l_closed, self.beta, self.stroke, self.preload,
+                                  self.rate, self.load)
+        return np.atleast_1d(cur), np.atleast_1d(gap)
+
     def current(self, lam, x) -> np.ndarray:
         """Coil current in A from flux linkage V*s and gap m."""
+        if self.curves is not None:
+            return self.curves.current(lam, x)
         return lam * (1.0 + self.beta * x) / self.l_closed
 
     def closing_force(self, lam) -> np.ndarray:
-        """Magnetic force in N pulling shut at flux linkage ``lam``: ``lam^2 beta / (2 L_c)``."""
+        """Magnetic force in N pulling shut at flux linkage ``lam``: ``lam^2 beta / (2 L_c)``
+        (the co-energy force of the curves with them)."""
+        if self.curves is not None:
+            return self.curves.closing_force(lam)
         return lam * lam * self.beta / (2.0 * self.l_closed)
+
+    def field_energy(self, lam, x) -> np.ndarray:
+        """Energy J stored in the field at flux linkage ``lam`` V*s and gap ``x`` m."""
+        if self.curves is not None:
+            return self.curves.field_energy(lam, x)
+        return 0.5 * lam * self.current(lam, x)
 
     def opening_force(self, x) -> np.ndarray:
         """Spring + load force in N pushing open at gap ``x``."""
@@ -146,11 +213,20 @@ def params_from_loop(arm, lp, l_factor) -> ArmatureParams:
     equivalent gap stays and the force constant scales with it.
     """
     l_closed, beta = fit_gap(arm.inductance_open, arm.inductance_closed, arm.stroke)
-    return ArmatureParams.make(
+    p = ArmatureParams.make(
         v_on=lp.v_on, r_on=lp.r_on, r_off=lp.r_off, v_off=lp.v_off,
         l_closed=l_closed * np.asarray(l_factor, float), beta=beta, stroke=arm.stroke,
         mass=arm.mass, preload=arm.spring_preload, rate=arm.spring_rate, load=arm.load_force,
         damping=arm.damping, restitution=arm.restitution)
+    if not arm.open_current:
+        return p
+    from .flux import curve
+    from .gap_curves import GapCurves
+
+    scale = np.broadcast_to(np.asarray(l_factor, float), p.v_on.shape).astype(float)
+    gap = GapCurves(curve(arm.open_current, arm.open_linkage),
+                    curve(arm.seated_current, arm.seated_linkage), scale, p.stroke)
+    return dataclasses.replace(p, curves=gap)
 
 
 def time_bound(t0, l_closed, r, mass, stroke, damping, force):

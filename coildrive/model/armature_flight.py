@@ -62,6 +62,8 @@ class _Rhs:
     """Right-hand side ``dy/dt`` for state rows (lambda, x, v, q, sq), vectorised."""
 
     def __init__(self, p: ArmatureParams, on: np.ndarray, live: np.ndarray):
+        self.curves = p.curves
+        self.inv_m = 1.0 / p.mass
         self.inv_lc = 1.0 / p.l_closed
         self.beta = p.beta
         self.drive_v = np.where(on, p.v_on, -p.v_off)
@@ -76,14 +78,19 @@ class _Rhs:
         """``d(dy/dt)/dy`` per point, shape (N, 5, 5) (rows and columns lambda, x, v, q, sq)."""
         lam, x = y[0], y[1]
         n = lam.size
-        di_dl = (1.0 + self.beta * x) * self.inv_lc
-        di_dx = lam * self.beta * self.inv_lc
-        i = lam * di_dl
+        if self.curves is None:
+            di_dl = (1.0 + self.beta * x) * self.inv_lc
+            di_dx = lam * self.beta * self.inv_lc
+            i = lam * di_dl
+            df_dl = 2.0 * self.cm * lam
+        else:   # the saturating coil's curves (model.gap_curves): the same law, tabulated
+            i, di_dl, di_dx, _, df = self.curves.state(lam, x)
+            df_dl = df * self.inv_m
         jac = np.zeros((n, 5, 5))
         jac[:, 0, 0] = -self.live * self.drive_r * di_dl
         jac[:, 0, 1] = -self.live * self.drive_r * di_dx
         jac[:, 1, 2] = 1.0
-        jac[:, 2, 0] = -2.0 * self.cm * lam
+        jac[:, 2, 0] = -df_dl
         jac[:, 2, 1] = -self.km
         jac[:, 2, 2] = -self.dm
         jac[:, 3, 0] = di_dl
@@ -94,11 +101,16 @@ class _Rhs:
 
     def __call__(self, y: np.ndarray) -> np.ndarray:
         lam, x, v = y[0], y[1], y[2]
-        i = lam * (1.0 + self.beta * x) * self.inv_lc
+        if self.curves is None:
+            i = lam * (1.0 + self.beta * x) * self.inv_lc
+            pull = self.cm * lam * lam
+        else:
+            i, _, _, force, _ = self.curves.state(lam, x)
+            pull = force * self.inv_m
         out = np.empty_like(y)
         out[0] = self.live * (self.drive_v - self.drive_r * i)
         out[1] = v
-        out[2] = self.f0 - self.km * x - self.cm * lam * lam - self.dm * v
+        out[2] = self.f0 - self.km * x - pull - self.dm * v
         out[3] = i
         out[4] = i * i
         return out
@@ -219,9 +231,10 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
 
     A batch of one point goes through :func:`fly_point` (Python floats: numpy's per-call
     overhead on 1-element arrays would dominate; same algorithm and results), unless
-    :data:`SINGLE_POINT_SCALAR` is False; its ``path_*`` then hold the accepted steps only.
+    :data:`SINGLE_POINT_SCALAR` is False or the coil has curves (``p.curves``: their
+    tabulated law is numpy's); its ``path_*`` then hold the accepted steps only.
     """
-    if t.size == 1 and SINGLE_POINT_SCALAR:
+    if t.size == 1 and SINGLE_POINT_SCALAR and p.curves is None:
         return _fly_single(p, t, y, t_end, active, on, live, rtol, record, query, query_y,
                            track, peak, max_steps, stiff)
     n = t.size
@@ -344,7 +357,7 @@ class OnePoint:
     def __init__(self, p: ArmatureParams, scale=None):
         if len(p) != 1:
             raise ValueError("OnePoint holds the parameters of exactly one point")
-        g = {name: float(getattr(p, name)[0]) for name in p.__dataclass_fields__}
+        g = {name: float(getattr(p, name)[0]) for name in p.arrays}
         # the same expressions as _Rhs, so the same roundings
         self.inv_lc = 1.0 / g["l_closed"]
         self.l_closed = g["l_closed"]

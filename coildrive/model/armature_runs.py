@@ -69,14 +69,14 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     i_inf = p.v_on / p.r_on
     i_start = p.start_current
     moves = i_inf > i_start
-    l_open = p.l_open
+    l_open = p.coil_open
     t_start = np.where(moves, rise_time(np.where(moves, i_start, 0.0), 0.0, p.v_on, p.r_on, l_open), np.inf)
     q0, s0 = rise_integrals(np.where(moves, t_start, 0.0), 0.0, p.v_on, p.r_on, l_open)
-    lam_start = l_open * i_start
-    lam_stay = p.l_closed * p.stay_current
+    lam_start = p.flux_open(i_start)
+    lam_stay = p.flux_closed(p.stay_current)
     y = np.stack([np.where(moves, lam_start * (1.0 + 1e-12), 0.0), p.stroke.copy(), np.zeros(n), q0, s0])
     t = np.where(moves, t_start, 0.0)
-    f_inf = p.closing_force(l_open * i_inf) - p.opening_force(p.stroke)
+    f_inf = p.closing_force(p.flux_open(i_inf)) - p.opening_force(p.stroke)
     bound = np.where(moves, time_bound(t_start, p.l_closed, p.r_on, p.mass, p.stroke, p.damping, f_inf), np.inf)
     status = np.where(moves, -1, NO_START)
     nan = np.full(n, np.nan)
@@ -151,7 +151,7 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
         peak_end = np.where(
             before, rise_current(want, 0.0, p.v_on, p.r_on, l_open),
             np.where(after, rise_current(np.where(after, want - seat_time, 0.0), i_seat, p.v_on,
-                                         p.r_on, p.l_closed),
+                                         p.r_on, p.coil_closed),
                      p.current(query_y[0], query_y[1])))
     return PullInBatch(status=status, start_current=i_start, start_time=t_start,
                        impact_time=np.where(seated, impact_time, np.nan), impact_speed=impact_speed,
@@ -174,9 +174,9 @@ def peak_current_closed_form(p: ArmatureParams, pin: PullInBatch, peak_time):
     if not np.all(before | after):
         return None
     i_seat = np.where(after, pin.seat_current, 0.0)
-    return np.where(before, rise_current(want, 0.0, p.v_on, p.r_on, p.l_open),
+    return np.where(before, rise_current(want, 0.0, p.v_on, p.r_on, p.coil_open),
                     rise_current(np.where(after, want - pin.seat_time, 0.0), i_seat, p.v_on,
-                                 p.r_on, p.l_closed))
+                                 p.r_on, p.coil_closed))
 
 
 # --------------------------------------------------------------------------- release
@@ -215,12 +215,12 @@ def release(p: ArmatureParams, i_off, rtol: float = 1e-7, max_rounds: int = 4 * 
     n = len(p)
     i_off = np.broadcast_to(np.asarray(i_off, float), (n,)).copy()
     i_stay = p.stay_current
-    lam_stay = p.l_closed * i_stay
-    lam_start = p.l_open * p.start_current
+    lam_stay = p.flux_closed(i_stay)
+    lam_start = p.flux_open(p.start_current)
     held = i_off > i_stay
-    t_un = np.where(held, decay_time(np.minimum(i_stay, i_off), i_off, p.r_off, p.v_off, p.l_closed), 0.0)
-    q0, s0 = decay_integrals(t_un, i_off, p.r_off, p.v_off, p.l_closed)
-    lam = np.where(held, lam_stay * (1.0 - 1e-12), p.l_closed * i_off)
+    t_un = np.where(held, decay_time(np.minimum(i_stay, i_off), i_off, p.r_off, p.v_off, p.coil_closed), 0.0)
+    q0, s0 = decay_integrals(t_un, i_off, p.r_off, p.v_off, p.coil_closed)
+    lam = np.where(held, lam_stay * (1.0 - 1e-12), p.flux_closed(i_off))
     y = np.stack([lam, np.zeros(n), np.zeros(n), q0, s0])
     t = t_un.copy()
     live = lam > 0
@@ -253,8 +253,8 @@ def release(p: ArmatureParams, i_off, rtol: float = 1e-7, max_rounds: int = 4 * 
         tail = stays & live
         if tail.any():
             i_o = p.current(y[0], p.stroke)
-            dz = decay_time(0.0, i_o, p.r_off, p.v_off, p.l_open)
-            dq, ds = decay_integrals(np.where(tail, dz, 0.0), i_o, p.r_off, p.v_off, p.l_open)
+            dz = decay_time(0.0, i_o, p.r_off, p.v_off, p.coil_open)
+            dq, ds = decay_integrals(np.where(tail, dz, 0.0), i_o, p.r_off, p.v_off, p.coil_open)
             zero_time = np.where(tail, t + dz, zero_time)
             y[3] = np.where(tail, y[3] + dq, y[3])
             y[4] = np.where(tail, y[4] + ds, y[4])
@@ -288,10 +288,10 @@ def late_release(p: ArmatureParams, fast: ArmatureParams, i_off, lag: float,
     i_off = np.broadcast_to(np.asarray(i_off, float), (n,)).copy()
     i_stay = p.stay_current
     t_un = np.where(i_off > i_stay,
-                    decay_time(np.minimum(i_stay, i_off), i_off, p.r_off, p.v_off, p.l_closed), 0.0)
+                    decay_time(np.minimum(i_stay, i_off), i_off, p.r_off, p.v_off, p.coil_closed), 0.0)
     seated = lag < t_un
-    i_lag = decay_current(lag, i_off, p.r_off, p.v_off, p.l_closed)
-    q1, s1 = decay_integrals(np.full(n, float(lag)), i_off, p.r_off, p.v_off, p.l_closed)
+    i_lag = decay_current(lag, i_off, p.r_off, p.v_off, p.coil_closed)
+    q1, s1 = decay_integrals(np.full(n, float(lag)), i_off, p.r_off, p.v_off, p.coil_closed)
     nan = np.full(n, np.nan)
     out = dict(status=np.full(n, NOT_OPEN), unlatch_time=nan.copy(), open_time=nan.copy(),
                zero_time=nan.copy(), charge=nan.copy(), square=nan.copy(), stall_gap=nan.copy(),
@@ -315,7 +315,7 @@ def late_release(p: ArmatureParams, fast: ArmatureParams, i_off, lag: float,
                                             pj.stroke[0], pj.damping[0],
                                             pj.opening_force(pj.stroke)[0]))
             tr = simulate(pj, [(lag, False, None, "hold"), (bound, False, None, "release")],
-                          state="seated", flux=float(pj.l_closed[0] * i_off[j]), rtol=rtol,
+                          state="seated", flux=float(pj.flux_closed(i_off[j])[0]), rtol=rtol,
                           release_params=fj, stop=lambda r: r.state == "open" and not r.live)
             m = int(np.searchsorted(tr.time, lag, side="right")) - 1
             opened = tr.state == "open" and tr.stopped

@@ -77,21 +77,34 @@ class _Point:
         if len(p) != 1:
             raise ValueError("armature_sim works on one operating point at a time")
         self.p = p
-        for name in p.__dataclass_fields__:
+        for name in p.arrays:
             setattr(self, name, float(getattr(p, name)[0]))
         self.l_open = float(p.l_open[0])
+        # what the closed-form segments take at the stops: H, or the curves' coils
+        self.coil_open = self.l_open if p.curves is None else p.coil_open[0]
+        self.coil_closed = self.l_closed if p.curves is None else p.coil_closed[0]
         self.i_start = float(p.start_current[0])
         self.i_stay = float(p.stay_current[0])
-        self.lam_start = self.l_open * self.i_start
-        self.lam_stay = self.l_closed * self.i_stay
+        self.lam_start = self.flux_at(self.i_start, False)
+        self.lam_stay = self.flux_at(self.i_stay, True)
         self.scales = p.reference_scales()[:, 0]
         i_inf = self.v_on / self.r_on
-        f_inf = 0.5 * i_inf**2 * self.l_closed * self.beta / (1 + self.beta * self.stroke) ** 2
+        f_inf = self.f_inf = float(p.closing_force(p.flux_open(i_inf))[0])
         weakest = min(self.preload + self.load, max(f_inf - self.preload - self.load, 1e-300))
         self.stiff = bool(is_stiff(p, weakest)[0])
 
+    def flux_at(self, i, seated: bool):
+        """Flux linkage V*s at ``i`` A (scalar or array) on the seat or the open stop."""
+        if self.p.curves is None:
+            return i * (self.l_closed if seated else self.l_open)
+        out = self.p.flux_closed(i) if seated else self.p.flux_open(i)
+        return float(out[0]) if np.ndim(i) == 0 else out
+
     def current(self, lam, x):
-        return lam * (1.0 + self.beta * x) / self.l_closed
+        if self.p.curves is None:
+            return lam * (1.0 + self.beta * x) / self.l_closed
+        out = self.p.curves.current(lam, x)
+        return float(out[0]) if np.ndim(lam) == 0 and np.ndim(x) == 0 else out
 
 
 class _Run:
@@ -124,7 +137,7 @@ def _rest_segment(run: _Run, t_end: float, on: bool, points: int, stop) -> None:
     stop, the current reaches zero, or ``t_end``."""
     pt = run.pt
     seated = run.state == "seated"
-    ind = pt.l_closed if seated else pt.l_open
+    ind = pt.coil_closed if seated else pt.coil_open
     x = 0.0 if seated else pt.stroke
     i0 = pt.current(run.y[0], x)
     if on:
@@ -137,14 +150,14 @@ def _rest_segment(run: _Run, t_end: float, on: bool, points: int, stop) -> None:
             t_leave = math.inf
         else:
             t_leave = 0.0 if run.y[0] > pt.lam_start else float(
-                rise_time(pt.i_start, i0, pt.v_on, pt.r_on, pt.l_open))
+                rise_time(pt.i_start, i0, pt.v_on, pt.r_on, pt.coil_open))
     else:
         if not run.live or i0 <= 0.0:
             run.live = False
             i0 = 0.0
         if seated:
             t_leave = 0.0 if i0 <= pt.i_stay else float(
-                decay_time(pt.i_stay, i0, pt.r_off, pt.v_off, pt.l_closed))
+                decay_time(pt.i_stay, i0, pt.r_off, pt.v_off, pt.coil_closed))
         else:
             t_leave = math.inf
     dt = min(t_leave, t_end - run.t)
@@ -163,7 +176,7 @@ def _rest_segment(run: _Run, t_end: float, on: bool, points: int, stop) -> None:
         else:
             i = np.zeros_like(s)
             q = sq = np.zeros_like(s)
-        ys = np.stack([i * ind, np.full_like(s, x), np.zeros_like(s), run.y[3] + q, run.y[4] + sq])
+        ys = np.stack([pt.flux_at(i, seated), np.full_like(s, x), np.zeros_like(s), run.y[3] + q, run.y[4] + sq])
         run.emit(run.t + s, ys, on)
         run.t += dt
         run.y = ys[:, -1].copy()
@@ -215,7 +228,7 @@ def _fly_point(run: _Run, t_end: float, on: bool, rtol: float, dense: int):
 
 
 def _fly_numpy(run: _Run, t_end: float, on: bool, rtol: float, dense: int):
-    if _flight.SINGLE_POINT_SCALAR:
+    if _flight.SINGLE_POINT_SCALAR and run.pt.p.curves is None:
         return _fly_point(run, t_end, on, rtol, dense)
     pt = run.pt
     fl = fly(pt.p, np.array([run.t]), run.y[:, None], np.array([t_end]), np.array([True]),
@@ -445,8 +458,8 @@ def pull_in_reference(p: ArmatureParams, method: str = "DOP853", rtol: float | N
         nan = math.nan
         empty = simulate(p, [], method=method, rtol=rtol)
         return PullInReference(False, math.inf, nan, nan, math.inf, empty)
-    t_start = float(rise_time(pt.i_start, 0.0, pt.v_on, pt.r_on, pt.l_open))
-    f_inf = 0.5 * i_inf**2 * pt.l_closed * pt.beta / (1 + pt.beta * pt.stroke) ** 2 - (pt.preload + pt.load)
+    t_start = float(rise_time(pt.i_start, 0.0, pt.v_on, pt.r_on, pt.coil_open))
+    f_inf = pt.f_inf - (pt.preload + pt.load)
     bound = float(time_bound(t_start, pt.l_closed, pt.r_on, pt.mass, pt.stroke, pt.damping, f_inf))
     tr = simulate(p, [(bound, True)], method=method, rtol=rtol, points=points,
                   stop=lambda r: r.state == "seated")
@@ -474,10 +487,10 @@ def release_reference(p: ArmatureParams, i_off: float, method: str = "DOP853",
     """Turn off ``i_off`` A with the armature seated; run until it rests on the open stop
     and the current is zero (or the bound of :func:`coildrive.model.armature_runs.release`)."""
     pt = _Point(p)
-    t_un = float(decay_time(min(pt.i_stay, i_off), i_off, pt.r_off, pt.v_off, pt.l_closed)) if i_off > pt.i_stay else 0.0
+    t_un = float(decay_time(min(pt.i_stay, i_off), i_off, pt.r_off, pt.v_off, pt.coil_closed)) if i_off > pt.i_stay else 0.0
     bound = float(time_bound(t_un, pt.l_closed, pt.r_off, pt.mass, pt.stroke, pt.damping,
                               pt.preload + pt.load))
-    tr = simulate(p, [(bound, False)], state="seated", flux=pt.l_closed * i_off, method=method,
+    tr = simulate(p, [(bound, False)], state="seated", flux=pt.flux_at(i_off, True), method=method,
                   rtol=rtol, points=points,
                   stop=lambda r: r.state == "open" and not r.live)
     ev = tr.events

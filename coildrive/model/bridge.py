@@ -159,6 +159,49 @@ def pump_up(i0, v1, capacitance, r_off, inductance, v_diode) -> PumpUp:
 
 
 
+#: The bridge's four switches, in the order of the header's switch bits (bit 0 first):
+#: Q1 leg A to the bus, Q2 leg A to the rail, Q3 leg B to the bus, Q4 leg B to the rail.
+SWITCHES = ("high_a", "low_a", "high_b", "low_b")
+#: The switches on in each phase of an actuation: the peak and the hold's on-times drive
+#: the coil from A to B (Q1 + Q4); the hold's off-times recirculate through the two
+#: low-side switches (Q2 + Q4, slow decay); the release opens all four (fast decay
+#: through Q2's and Q3's body diodes into the bus). Both switches of one leg are never on
+#: together (that would short the bus).
+PHASES = {"peak": ("high_a", "low_b"), "hold_on": ("high_a", "low_b"),
+          "hold_decay": ("low_a", "low_b"), "release": ()}
+
+
+def switch_mask(names) -> int:
+    """The switches ``names`` as a bit mask (bit k: ``SWITCHES[k]`` on)."""
+    return sum(1 << SWITCHES.index(n) for n in names)
+
+
+def switch_states(phase) -> dict[str, np.ndarray]:
+    """Each switch's state (0/1) per sample from ``phase`` (1: an on-time of the peak or
+    the hold, 0: a hold off-time, -1: released, all open), by :data:`PHASES`."""
+    phase = np.asarray(phase)
+    return {name: np.where(phase == 1, name in PHASES["hold_on"],
+                           np.where(phase == 0, name in PHASES["hold_decay"],
+                                    name in PHASES["release"])).astype(np.int8)
+            for name in SWITCHES}
+
+
+def coil_voltage(supply, current, phase, r_switch, r_sense, sense_inline: bool, v_diode):
+    """Voltage across the coil's terminals (V, ``R_coil i + L di/dt``) per sample, from the
+    bus V, the coil current A and ``phase`` (1: Q1 + Q4 drive, 0: Q2 + Q4 slow decay, -1:
+    all off): driving ``V_bus - (2 R_sw + R_sense) i``; slow decay ``-(2 R_sw [+ R_sense
+    inline]) i``; fast decay ``-(V_bus + 2 V_d + R_sense i)`` while current flows, 0 once
+    it has stopped."""
+    i = np.asarray(current, float)
+    supply = np.asarray(supply, float)
+    inline = r_sense if sense_inline else 0.0
+    drive = supply - (2.0 * r_switch + r_sense) * i
+    slow = -(2.0 * r_switch + inline) * i
+    fast = np.where(i > 0, -(supply + 2.0 * v_diode + r_sense * i), 0.0)
+    phase = np.asarray(phase)
+    return np.where(phase == 1, drive, np.where(phase == 0, slow, fast))
+
+
 @dataclass(frozen=True)
 class FullBridge:
     """:class:`~coildrive.model.topology.Topology` of a full bridge. Its two legs swing
@@ -171,6 +214,7 @@ class FullBridge:
         "coil": "inline with the coil (reads the current always)",
         "switch": "in the common return below the low-side switches (reads only while driving)"})
     shows_node: bool = False
+    drive_switches: int = 2
 
     def node_voltage(self, supply, switch_voltage, sense_drop):
         """Leg A to ground, V: the bus less its high-side switch's voltage."""

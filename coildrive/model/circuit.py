@@ -38,8 +38,10 @@ through two switches (``R_on = R_coil + 2 R_switch + R_sense``); its hold path i
 decay through the two low-side switches (``R_off = R_coil + 2 R_switch`` + ``R_sense``
 inline, ``V_off = 0``), its release path the fast decay through two body diodes into the
 bus (``R_off = R_coil + R_sense``, ``V_off = V_bus + 2 V_diode``); the switches see
-``V_bus`` in the slow decay and ``V_bus + V_diode`` (+ ``R_sense i`` from a common-return
-resistor) in the fast one.
+``V_bus + R_switch i`` in the slow decay and ``V_bus + V_diode`` (+ ``R_sense i`` from a common-return
+resistor) in the fast one. With ``hold.fast_fraction > 0`` (mixed decay) the hold's loop
+carries the fast path too (``Loop.mixed``, :class:`~coildrive.model.pwm.MixedDecay`): each
+off-time starts fast and ends slow.
 """
 
 from __future__ import annotations
@@ -51,7 +53,8 @@ import numpy as np
 from ..config import Drive
 from .bridge import fast_switch_voltage
 from ..copper import COPPER_ALPHA, copper_resistance  # noqa: F401  (re-exported)
-from . import flux
+from . import eddy, flux
+from .pwm import MixedDecay
 
 
 @dataclass(frozen=True)
@@ -70,13 +73,14 @@ class Loop:
     r_on: np.ndarray
     r_off: np.ndarray
     v_off: np.ndarray
-    inductance: np.ndarray   # or a flux.FluxCoil: a saturating coil at these points
+    inductance: np.ndarray   # or a flux.FluxCoil (a saturating coil) or an eddy.EddyCoil
     r_coil: np.ndarray
     supply: np.ndarray
     bypassed: bool = False
     v_diode: np.ndarray | None = None
     v_fast: np.ndarray | None = None
     bridge: str = ""
+    mixed: MixedDecay | None = None
 
     def diode(self, drive: Drive):
         """The freewheel diode's drop at each point (V)."""
@@ -92,8 +96,8 @@ class Loop:
     def switch_voltage(self, drive: Drive, current):
         """Switch (drain) voltage in V right after turning off ``current`` A."""
         fw = drive.freewheel
-        if self.bridge == "slow":  # the open high-side switches hold off the bus
-            return self.supply + 0.0 * np.asarray(current, float)
+        if self.bridge == "slow":  # Q1 holds off the bus above leg A (at -R_switch i)
+            return self.supply + drive.switch.on_resistance * np.asarray(current, float)
         if self.bridge == "fast":
             return fast_switch_voltage(self.supply, self.diode(drive), drive.board.sense.resistance,
                                        drive.board.sense.position == "coil", current)
@@ -167,17 +171,40 @@ def loop(drive: Drive, supply, coil_temp, r_factor=1.0, l_factor=1.0, path: str 
             v_off = v_diode + v_fast + 0.0 * supply
     # With a moving armature the switched segments that use Loop.inductance (the PWM hold,
     # the release until the armature lets go) all have it seated: the closed inductance.
+    # With the coil's two curves ([armature] + coil.seated_current) that is the seated curve.
     base = coil.inductance if drive.armature is None else drive.armature.inductance_closed
-    curve = coil.flux_current and flux.curve(coil.flux_current, coil.flux_linkage)
+    if coil.seated_current and drive.armature is not None:
+        curve = flux.curve(coil.seated_current, coil.seated_linkage)
+    else:
+        curve = coil.flux_current and flux.curve(coil.flux_current, coil.flux_linkage)
     inductance = (1.0 if curve else base) * np.asarray(l_factor, float)
     arrays = np.broadcast_arrays(supply, r_on, r_off, v_off, inductance, r_coil, v_diode, v_fast)
     # read-only broadcast views: no copies of scalars spread over many points
     supply, r_on, r_off, v_off, inductance, r_coil, v_diode, v_fast = arrays
     if curve:   # a saturating coil: its curve, scaled by the tolerance (model.flux)
         inductance = flux.FluxCoil(curve, inductance)
+    if coil.eddy_resistance:   # an eddy resistance across the magnetising branch (model.eddy)
+        inductance = eddy.EddyCoil(inductance, np.broadcast_to(coil.eddy_resistance, supply.shape))
+    mixed = None
+    if kind == "slow" and drive.hold.fast_fraction > 0:
+        mixed = MixedDecay(drive.hold.fast_fraction, r_coil + r_sense + 0.0 * supply,
+                           supply + 2.0 * v_diode)
     return Loop(v_on=supply, r_on=r_on, r_off=r_off, v_off=v_off, inductance=inductance,
                 r_coil=r_coil, supply=supply, bypassed=bypassed, v_diode=v_diode, v_fast=v_fast,
-                bridge=kind)
+                bridge=kind, mixed=mixed)
+
+
+def open_inductance(drive: Drive, l_factor):
+    """The coil before the armature moves, per point: ``armature.inductance_open`` H times
+    the tolerance factor, or with the coil's two curves the open one's
+    :class:`~coildrive.model.flux.FluxCoil` (without ``[armature]``: ``None``)."""
+    arm = drive.armature
+    if arm is None:
+        return None
+    factor = np.asarray(l_factor, float)
+    if drive.coil.seated_current:
+        return flux.FluxCoil(flux.curve(drive.coil.flux_current, drive.coil.flux_linkage), factor)
+    return arm.inductance_open * factor
 
 
 def freewheel_element_energy(drive: Drive, lp: Loop, charge, square):

@@ -94,6 +94,10 @@ class FluxCurve:
         self.edges = np.append(x, np.inf)
         self.current = x
         self.flux = y
+        # co-energy of the whole pieces below each piece's start (J), for coenergy()
+        h_all = np.diff(x)
+        whole = (((c[0] / 4 * h_all + c[1] / 3) * h_all + c[2] / 2) * h_all + c[3]) * h_all
+        self._whole = np.concatenate([[0.0], np.cumsum(whole)])
 
     def _index(self, i):
         return np.maximum(np.searchsorted(self.base, i, side="right") - 1, 0)
@@ -113,6 +117,49 @@ class FluxCurve:
         d = i - self.base[k]
         c = self.coef[:, k]
         return (3 * c[0] * d + 2 * c[1]) * d + c[2]
+
+    def coenergy(self, i):
+        """Magnetic co-energy ``W'(i) = integral_0^i psi(i') di'`` in J at ``i`` A (``i >= 0``):
+        each piece's cubic integrated in closed form, the whole pieces below summed once."""
+        i = np.asarray(i, float)
+        k = self._index(i)
+        d = i - self.base[k]
+        c = self.coef[:, k]
+        return self._whole[k] + (((c[0] / 4 * d + c[1] / 3) * d + c[2] / 2) * d + c[3]) * d
+
+    def current_of(self, psi, iterations: int = 60):
+        """Current in A at flux linkage ``psi`` Wb (``psi >= 0``): the inverse of the
+        monotone curve. The piece holding ``psi`` is found among the table's fluxes; in it,
+        Newton steps on the cubic from the chord's value, kept inside the piece (a step
+        leaving it bisects), to 1e-14 of the piece's length or the flux to rounding; the
+        extension above the table is linear and exact."""
+        psi = np.asarray(psi, float)
+        k = np.clip(np.searchsorted(self.flux, psi, side="right") - 1, 0, self.base.size - 1)
+        c = self.coef[:, k]
+        lo = np.zeros_like(psi)
+        hi = np.where(k < self.current.size - 1, np.diff(self.edges)[k], np.inf)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            d = np.where(np.isfinite(hi), (psi - c[3]) / (self.flux[np.minimum(k + 1, self.flux.size - 1)]
+                                                      - c[3]) * hi, (psi - c[3]) / c[2])
+        d = np.where(np.isfinite(d), np.clip(d, 0.0, np.where(np.isfinite(hi), hi, np.inf)), 0.0)
+        tol = 1e-14 * np.where(np.isfinite(hi), hi, 1.0 + np.abs(d))
+        skip = ~np.isfinite(psi)   # a NaN asks for nothing (NaN out, no warnings)
+        d = np.where(skip, 0.0, d)
+        for _ in range(iterations):
+            f = ((c[0] * d + c[1]) * d + c[2]) * d + c[3] - np.where(skip, 0.0, psi)
+            slope = (3 * c[0] * d + 2 * c[1]) * d + c[2]
+            lo = np.where(f < 0, d, lo)
+            hi = np.where(f > 0, d, hi)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                nxt = d - f / slope
+            bad = ~np.isfinite(nxt) | (nxt < lo) | (nxt > hi)
+            nxt = np.where(bad, 0.5 * (lo + hi), nxt)
+            # done: the step is below the tolerance or the flux is met to rounding
+            done = np.all((np.abs(nxt - d) <= tol) | (np.abs(f) <= 4e-16 * np.abs(psi)) | skip)
+            d = nxt
+            if done:
+                break
+        return np.where(skip, np.nan, self.base[k] + d)
 
 
 @functools.lru_cache(maxsize=32)
@@ -150,8 +197,9 @@ class FluxCoil:
 
 def small_signal(inductance):
     """The inductance a report shows per point: H as given for a linear coil, the
-    incremental inductance at zero current for a :class:`FluxCoil`."""
-    return inductance.small_signal() if isinstance(inductance, FluxCoil) else inductance
+    incremental inductance at zero current for a :class:`FluxCoil` (or the magnetising
+    branch's, for a coil with an eddy resistance)."""
+    return inductance.small_signal() if hasattr(inductance, "small_signal") else inductance
 
 
 def incremental_at(inductance, i):

@@ -42,6 +42,7 @@ class HighSide:
     sense_places: dict = field(default_factory=lambda: {
         "coil": "in the coil return (coil to ground)", "switch": "in the supply leg (bus to switch)"})
     shows_node: bool = True
+    drive_switches: int = 1
 
     def node_voltage(self, supply, switch_voltage, sense_drop):
         """Switch node to ground, V: the supply less the switch and the supply-leg drop."""

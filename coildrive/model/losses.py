@@ -23,7 +23,11 @@ bypass switch          ``R_bp S_off / T`` (split decay: the hold's slow path is 
 
 A full bridge (``lp.bridge == "slow"``) drives through two switches and recirculates
 through the two low-side ones: switch conduction ``2 R_switch (S_on + S_off) / T``, no
-freewheel element.
+freewheel element. With mixed decay (``lp.mixed``) the fast part of each off-time
+(``Q_fast``, ``S_fast``) runs through the two body diodes into the bus: diodes ``2 V_diode
+Q_fast / T``, the sense resistor carries it in either position, the switches conduct only
+in the slow part, and the supply's figure is net of what the bus takes back, ``V_bus (Q_on
+- Q_fast) / T``.
 
 (``Q`` = integral of ``i``, ``S`` = integral of ``i^2``.) In steady state the inductor's
 energy is the same at the start and end of every period, so the supply power equals the
@@ -103,14 +107,14 @@ def hold_losses(drive: Drive, lp: Loop, ss: PwmSteadyState, frequency,
     """
     return element_powers(drive, lp, ss.charge_on, ss.square_on, ss.charge_off, ss.square_off,
                           frequency, ss.i_min, ss.i_max, ss.dcm, frequency, rise_time, fall_time,
-                          diode_drop, zener_voltage, resistance)
+                          diode_drop, zener_voltage, resistance, ss.charge_fast, ss.square_fast)
 
 
 def element_powers(drive: Drive, lp: Loop, charge_on, square_on, charge_off, square_off,
                    rate, i_min, i_max, dcm, switching_rate, rise_time: float = 0.0,
                    fall_time: float = 0.0, diode_drop: float | None = None,
                    zener_voltage: float | None = None,
-                   resistance: float | None = None) -> HoldLosses:
+                   resistance: float | None = None, charge_fast=0.0, square_fast=0.0) -> HoldLosses:
     """Average powers (W) of every element over a periodic hold of two segments.
 
     ``charge_*`` (A*s) and ``square_*`` (A^2*s) are ``int i dt`` and ``int i^2 dt``
@@ -121,7 +125,8 @@ def element_powers(drive: Drive, lp: Loop, charge_on, square_on, charge_off, squ
     (the switch then turns on against the bus voltage alone), ``switching_rate`` the
     edge pairs per second (Hz; 0 where nothing switches). Any two-segment hold fits:
     the PWM hold (:func:`hold_losses`) and the current-mode holds of
-    :mod:`coildrive.model.current_mode`.
+    :mod:`coildrive.model.current_mode`. ``charge_fast``/``square_fast``: the part of the
+    off-segment integrals in a full bridge's fast path (mixed decay).
     """
     fw = drive.freewheel
     sense = drive.board.sense
@@ -143,9 +148,17 @@ def element_powers(drive: Drive, lp: Loop, charge_on, square_on, charge_off, squ
     rf = fw.resistance if resistance is None else resistance
     bypass_p = zero
     if getattr(lp, "bridge", "") == "slow":
-        cond = 2.0 * drive.switch.on_resistance * (s_on + s_off)
-        diode_p, zener_p, res_p, clamp_p = zero, zero, zero, zero
+        q_f, s_f = charge_fast * f, square_fast * f
+        cond = 2.0 * drive.switch.on_resistance * (s_on + s_off - s_f)
+        diode_p, zener_p, res_p, clamp_p = 2.0 * vd * q_f + zero, zero, zero, zero
         v_turn_off = lp.supply + 0.0 * q_on
+        if getattr(lp, "mixed", None) is not None:  # each off-time starts in the fast path
+            supply = lp.supply * (q_on - q_f)
+            if sense.position != "coil":
+                sense_p = sense_p + r_sense * s_f
+                v_turn_off = lp.supply + vd + r_sense * i_max
+            else:
+                v_turn_off = lp.supply + vd + 0.0 * i_max
     elif bypassed:
         r_bp = fw.bypass_resistance
         diode_p, zener_p, res_p, clamp_p = vd * q_off, zero, zero, zero

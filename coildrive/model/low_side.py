@@ -28,6 +28,7 @@ class LowSide:
     sense_places: dict = field(default_factory=lambda: {
         "coil": "in the coil path", "switch": "under the switch (source to ground)"})
     shows_node: bool = False
+    drive_switches: int = 1
 
     def node_voltage(self, supply, switch_voltage, sense_drop):
         """Drain to ground, V: the switch's voltage on top of the drop under it."""

@@ -11,6 +11,18 @@ with ``A = V/R_on`` and ``B = V_off/R_off``. Where that gives ``i_min < 0`` the 
 blocks: the current reaches zero during the off time and stays there (discontinuous
 conduction, DCM), and every period starts from zero. Mean and RMS follow from the exact
 segment integrals — no time stepping.
+
+Mixed decay (a full bridge, :class:`MixedDecay`): each off-time starts with a fraction
+``m`` in the fast path (all four switches off, the current into the bus through two body
+diodes, ``L di/dt = -(R_f i + V_f)``, ``V_f = V_bus + 2 V_d``) and ends in the slow path
+(``L di/dt = -R_s i``), three exponential segments a period. With ``e_f = exp(-m (1-D)
+T R_f / L)``, ``e_s = exp(-(1-m) (1-D) T R_s / L)`` and ``F = V_f / R_f`` the continuous
+fixed point is::
+
+    i_min = ((A (1 - e_on) + F) e_f - F) e_s / (1 - e_on e_f e_s)
+
+and where that gives ``i_min <= 0`` the current dies in the fast part (the body diodes
+block) and every period starts from zero. ``m = 0`` is the plain two-segment orbit.
 """
 
 from __future__ import annotations
@@ -19,6 +31,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from . import eddy
+from .eddy import EddyCoil
 from .flux import FluxCoil, linear_orbit, orbit
 from .rl import decay_integrals, decay_time, rise_integrals
 
@@ -30,6 +44,14 @@ class PwmSteadyState:
     ``charge_on``/``square_on`` and ``charge_off``/``square_off`` are the integrals of
     ``i`` and ``i^2`` over one period's on and off segments; with the loop resistances
     and voltages they give every power in the circuit (supply, copper, switch, freewheel).
+
+    With an eddy resistance (:mod:`coildrive.model.eddy`): ``i_min``/``i_max`` are the
+    magnetising current's (the state the turn-offs start from), the integrals, ``mean``
+    and ``rms`` the terminal current's (the mean is the same: the branch voltage
+    averages to zero over a period), ``ripple`` is the terminal current's highest less
+    its lowest (``terminal_max`` - ``terminal_min``, what the sense resistor sees),
+    ``dcm`` says the freewheel stops conducting in the off-time, and ``eddy_energy`` is
+    the eddy resistance's energy per period (J). Those three are ``None`` without one.
     """
 
     i_min: np.ndarray
@@ -44,9 +66,77 @@ class PwmSteadyState:
     square_on: np.ndarray
     charge_off: np.ndarray
     square_off: np.ndarray
+    terminal_min: np.ndarray | None = None
+    terminal_max: np.ndarray | None = None
+    eddy_energy: np.ndarray | None = None
+    charge_fast: np.ndarray | float = 0.0
+    square_fast: np.ndarray | float = 0.0
 
 
-def pwm_steady_state(duty, frequency, v_on, r_on, r_off, v_off, inductance) -> PwmSteadyState:
+@dataclass(frozen=True)
+class MixedDecay:
+    """A full bridge's mixed decay in the hold: the first ``fraction`` (0..1) of each
+    off-time through the fast path ``L di/dt = -(r_fast i + v_fast)`` (ohm, V: the coil and
+    sense resistor, the bus plus two body diodes), the rest through the loop's slow path.
+    Arrays broadcast with the loop's."""
+
+    fraction: float
+    r_fast: np.ndarray
+    v_fast: np.ndarray
+
+    def at(self, k) -> "MixedDecay":
+        """The same at the points ``k`` of the flattened arrays (``shape``: their shape)."""
+        return MixedDecay(self.fraction, self.r_fast[k], self.v_fast[k])
+
+    def flat(self, shape) -> "MixedDecay":
+        """The arrays broadcast to ``shape`` and flattened."""
+        return MixedDecay(self.fraction, *(np.array(np.broadcast_to(np.asarray(x, float), shape),
+                                                    dtype=float).ravel()
+                                           for x in (self.r_fast, self.v_fast)))
+
+
+def mixed_steady_state(duty, frequency, v_on, r_on, r_off, inductance,
+                       mixed: MixedDecay) -> PwmSteadyState:
+    """Steady state of a mixed-decay hold: on for ``duty`` of the period, then
+    ``mixed.fraction`` of the off-time in the fast path and the rest in the slow one
+    (``r_off`` ohm, no opposing voltage). Closed form (module docstring); the fast
+    segment's integrals are ``charge_fast``/``square_fast`` (A*s, A^2*s), and
+    ``charge_off``/``square_off`` hold both off segments. ``conduction_off`` is the time
+    the current flows in the off-time (s)."""
+    duty, frequency, v_on, r_on, r_off, ind, r_f, v_f = np.broadcast_arrays(
+        *(np.asarray(x, float) for x in (duty, frequency, v_on, r_on, r_off, inductance,
+                                         mixed.r_fast, mixed.v_fast)))
+    period = 1.0 / frequency
+    t_on = duty * period
+    t_fast = mixed.fraction * (period - t_on)
+    t_slow = period - t_on - t_fast
+    a = v_on / r_on
+    f = v_f / r_f
+    e_on = np.exp(-t_on * r_on / ind)
+    e_f = np.exp(-t_fast * r_f / ind)
+    e_s = np.exp(-t_slow * r_off / ind)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        i_ccm = ((a * (1.0 - e_on) + f) * e_f - f) * e_s / (1.0 - e_on * e_f * e_s)
+    dcm = ~(i_ccm > 0.0)
+    i_min = np.where(dcm, 0.0, i_ccm)
+    i_max = a + (i_min - a) * e_on
+    fast_zero = decay_time(0.0, i_max, r_f, v_f, ind)
+    t_f = np.where(dcm, np.minimum(fast_zero, t_fast), t_fast)
+    i_f = np.where(dcm, 0.0, (i_max + f) * e_f - f)
+    t_s = np.where(dcm, 0.0, t_slow)
+    q_on, s_on = rise_integrals(t_on, i_min, v_on, r_on, ind)
+    q_f, s_f = decay_integrals(t_f, i_max, r_f, v_f, ind)
+    q_s, s_s = decay_integrals(t_s, i_f, r_off, 0.0, ind)
+    mean = (q_on + q_f + q_s) / period
+    rms = np.sqrt(np.maximum((s_on + s_f + s_s) / period, 0.0))
+    return PwmSteadyState(i_min=i_min, i_max=i_max, mean=mean, rms=rms, ripple=i_max - i_min,
+                          dcm=dcm, conduction_off=t_f + t_s, period=period, charge_on=q_on,
+                          square_on=s_on, charge_off=q_f + q_s, square_off=s_f + s_s,
+                          charge_fast=q_f, square_fast=s_f)
+
+
+def pwm_steady_state(duty, frequency, v_on, r_on, r_off, v_off, inductance,
+                     mixed: MixedDecay | None = None) -> PwmSteadyState:
     """Steady state of voltage-mode PWM at ``duty`` (0..1) and ``frequency`` Hz.
 
     Parameters
@@ -59,7 +149,13 @@ def pwm_steady_state(duty, frequency, v_on, r_on, r_off, v_off, inductance) -> P
     v_off : constant voltage opposing the current while freewheeling, V (> 0)
     inductance : H, or a :class:`~coildrive.model.flux.FluxCoil` (a saturating coil: its
         exact periodic orbit, :func:`coildrive.model.flux.orbit`)
+    mixed : a full bridge's mixed decay (:func:`mixed_steady_state`; ``v_off`` is then
+        unused, the slow path has none), or ``None``
     """
+    if isinstance(inductance, EddyCoil):
+        return _eddy_steady_state(duty, frequency, v_on, r_on, r_off, v_off, inductance)
+    if mixed is not None and mixed.fraction > 0:
+        return mixed_steady_state(duty, frequency, v_on, r_on, r_off, inductance, mixed)
     if isinstance(inductance, FluxCoil):
         return _flux_steady_state(duty, frequency, v_on, r_on, r_off, v_off, inductance)
     duty, frequency, v_on, r_on, r_off, v_off, inductance = np.broadcast_arrays(
@@ -99,8 +195,38 @@ def _flux_steady_state(duty, frequency, v_on, r_on, r_off, v_off, coil: FluxCoil
                           charge_off=o.charge_off, square_off=o.square_off)
 
 
+def coil_heat(ss: PwmSteadyState, r_coil):
+    """W that heats the coil in the hold: the copper's ``I_rms^2 R_coil``, plus the eddy
+    currents' loss in the core (``eddy_energy`` per period) when there is an eddy term."""
+    heat = ss.rms**2 * r_coil
+    return heat if ss.eddy_energy is None else heat + ss.eddy_energy / ss.period
+
+
+def _eddy_steady_state(duty, frequency, v_on, r_on, r_off, v_off, coil: EddyCoil) -> PwmSteadyState:
+    """:func:`pwm_steady_state` with an eddy resistance, from its exact orbit
+    (:func:`coildrive.model.eddy.orbit`)."""
+    duty, frequency = np.broadcast_arrays(np.asarray(duty, float), np.asarray(frequency, float))
+    period = 1.0 / frequency
+    t_on = duty * period
+    o = eddy.orbit(coil, t_on, period - t_on, v_on, r_on, r_off, v_off)
+    mean = (o.charge_on + o.charge_off) / period
+    rms = np.sqrt(np.maximum((o.square_on + o.square_off) / period, 0.0))
+    period = np.broadcast_to(period, np.shape(mean))
+    return PwmSteadyState(i_min=o.i_min, i_max=o.i_max, mean=mean, rms=rms,
+                          ripple=o.terminal_max - o.terminal_min, dcm=o.dcm,
+                          conduction_off=o.conduction_off, period=period, charge_on=o.charge_on,
+                          square_on=o.square_on, charge_off=o.charge_off, square_off=o.square_off,
+                          terminal_min=o.terminal_min, terminal_max=o.terminal_max,
+                          eddy_energy=o.eddy_energy)
+
+
 def _points(inductance):
-    """``(array to broadcast, rebuild)``: a FluxCoil broadcasts by its scale."""
+    """``(array to broadcast, rebuild)``: a FluxCoil broadcasts by its scale, an
+    EddyCoil by the index of its (flattened) points."""
+    if isinstance(inductance, EddyCoil):
+        whole = eddy.flat(inductance, inductance.shape)
+        index = np.arange(whole.resistance.size, dtype=float).reshape(inductance.shape)
+        return index, lambda x: whole[np.asarray(x).astype(int)]
     if isinstance(inductance, FluxCoil):
         return np.asarray(inductance.scale, float), inductance.with_scale
     return inductance, lambda x: x
@@ -131,7 +257,7 @@ DUTY_TOL = 1e-13
 
 
 def duty_for_mean(target, frequency, v_on, r_on, r_off, v_off, inductance, iterations: int = 60,
-                  start=None):
+                  start=None, mixed: MixedDecay | None = None):
     """Smallest duty whose steady-state mean current reaches ``target`` A, per point.
 
     The mean current rises monotonically with duty. Each point starts from the
@@ -147,18 +273,21 @@ def duty_for_mean(target, frequency, v_on, r_on, r_off, v_off, inductance, itera
     five evaluations instead of 44. ``nan`` where even 100 % duty falls short;
     ``iterations`` bounds the steps (the rest is finished by bisection); ``start``
     (optional, broadcast like the others) replaces the first estimate, e.g. the duty of a
-    nearby point.
+    nearby point; ``mixed``: a full bridge's mixed decay (:class:`MixedDecay`).
     """
     inductance, coil = _points(inductance)
+    extra = () if mixed is None else (mixed.r_fast, mixed.v_fast)
     arrays = np.broadcast_arrays(*(np.asarray(x, float) for x in
-                                   (target, frequency, v_on, r_on, r_off, v_off, inductance)))
+                                   (target, frequency, v_on, r_on, r_off, v_off, inductance, *extra)))
+    arrays = arrays[:7]
     shape = arrays[0].shape
     tgt, f, v, ron, roff, voff, ind = (np.array(a, dtype=float).ravel() for a in arrays)
     ind = coil(ind)
+    mix = None if mixed is None or not mixed.fraction > 0 else mixed.flat(shape)
     if start is not None:
         start = np.array(np.broadcast_to(np.asarray(start, float), shape), dtype=float).ravel()
     out = np.full(tgt.size, np.nan)
-    full = pwm_steady_state(1.0, f, v, ron, roff, voff, ind).mean
+    full = pwm_steady_state(1.0, f, v, ron, roff, voff, ind, mix).mean
     reach = full >= tgt
     out[reach & (tgt <= 0)] = 0.0
     act = np.flatnonzero(reach & (tgt > 0))
@@ -166,7 +295,8 @@ def duty_for_mean(target, frequency, v_on, r_on, r_off, v_off, inductance, itera
         return out.reshape(shape)
 
     def mean_minus(x, k):
-        return pwm_steady_state(x, f[k], v[k], ron[k], roff[k], voff[k], ind[k]).mean - tgt[k]
+        return pwm_steady_state(x, f[k], v[k], ron[k], roff[k], voff[k], ind[k],
+                                None if mix is None else mix.at(k)).mean - tgt[k]
 
     k = act
     lo = np.zeros(k.size)

@@ -35,6 +35,9 @@ class Topology(Protocol):
     #: reports it and ``simulate`` adds the ``node_voltage_v`` and ``coil_voltage_v``
     #: columns (a low-side switch's node is its drain: the switch voltage says it all).
     shows_node: bool
+    #: Switches the drive current flows through while on (each ``on_resistance``): one,
+    #: or a full bridge's two (Q1 + Q4).
+    drive_switches: int
 
     def node_voltage(self, supply, switch_voltage, sense_drop):
         """The switch node against ground (V), from the supply V, the switch's drain-source
@@ -75,5 +78,10 @@ def sense_leg_drop(drive: Drive, current, on):
 
 def topology_of(drive: Drive) -> Topology:
     """The topology of ``drive`` (its ``[switch] topology``; config has checked the name)."""
+    return topology_named(drive.switch.topology)
+
+
+def topology_named(name: str) -> Topology:
+    """The topology of a ``[switch] topology`` value (a drive's, or a board's alone)."""
     return {"low_side": low_side.TOPOLOGY, "high_side": high_side.TOPOLOGY,
-            "full_bridge": bridge.TOPOLOGY}[drive.switch.topology]
+            "full_bridge": bridge.TOPOLOGY}[name]

@@ -22,9 +22,11 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..config import Drive
+from . import bridge
 from .circuit import full_bridge, loop, split_decay
 from . import boost as boost_model
 from . import supply as bus_model
+from .eddy import EddyCoil
 from .flux import FluxCoil
 from .rl import decay_current, decay_time, rise_current
 from .topology import coil_voltage, sense_leg_drop, topology_of
@@ -44,7 +46,10 @@ class Waveform:
     is the bypass switch: 1 while it shorts the fast-decay element; ``events`` then has
     ``bypass_open``. ``node_voltage`` (the switch node to ground, V) and ``coil_voltage``
     (across the coil's terminals, V) are there for topologies whose switch node is not
-    the switch voltage (``Topology.shows_node``; ``None`` for a low-side switch).
+    the switch voltage (``Topology.shows_node``; ``None`` for a low-side switch). A full
+    bridge has ``switches`` (each of its four switches' state, 0/1, by name:
+    :data:`coildrive.model.bridge.SWITCHES`) and ``coil_voltage``; its ``switch_on`` is 1
+    in the on-times (Q1 + Q4), its ``switch_voltage`` the highest of the four switches'.
     ``boost_voltage`` (V; a boosted peak only, else ``None``) is the boost capacitor:
     its discharge in the peak, then its recharge (:func:`coildrive.model.boost.voltage_trace`).
     """
@@ -62,11 +67,15 @@ class Waveform:
     node_voltage: np.ndarray | None = None
     coil_voltage: np.ndarray | None = None
     boost_voltage: np.ndarray | None = None
+    magnetising_current: np.ndarray | None = None
+    switches: dict[str, np.ndarray] | None = None
 
     def to_csv(self) -> str:
         """CSV text with header ``time_s,current_a,switch_on,switch_voltage_v,sense_current_a``
         (then ``bypass_on`` with split decay, ``position_m,velocity_m_s`` with an armature,
-        ``node_voltage_v,coil_voltage_v`` with a high-side switch, ``boost_v`` with a boosted
+        ``node_voltage_v,coil_voltage_v`` with a high-side switch, ``high_a_on,low_a_on,
+        high_b_on,low_b_on,coil_voltage_v`` with a full bridge, ``magnetising_current_a``
+        with an eddy-current term, ``boost_v`` with a boosted
         peak)."""
         buf = io.StringIO()
         cols = [self.time, self.current, self.switch_on, self.switch_voltage, self.sense_current]
@@ -84,6 +93,14 @@ class Waveform:
             cols += [self.node_voltage, self.coil_voltage]
             head += ",node_voltage_v,coil_voltage_v"
             fmt += ["%.6e", "%.6e"]
+        if self.switches is not None:
+            cols += [*self.switches.values(), self.coil_voltage]
+            head += "".join(f",{name}_on" for name in self.switches) + ",coil_voltage_v"
+            fmt += ["%d"] * len(self.switches) + ["%.6e"]
+        if self.magnetising_current is not None:
+            cols.append(self.magnetising_current)
+            head += ",magnetising_current_a"
+            fmt.append("%.9e")
         if self.boost_voltage is not None:
             cols.append(self.boost_voltage)
             head += ",boost_v"
@@ -109,18 +126,24 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
         return armature_actuation(drive, supply, coil_temp, peak_time, duty, frequency,
                                   hold_time, r_factor, l_factor, points, label)
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
+    if isinstance(lp.inductance, EddyCoil):   # an eddy-current term: its own sampling
+        return _eddy_actuation(drive, lp, supply, peak_time, duty, frequency, hold_time,
+                               points, label)
+    if split_decay(drive):
+        return _split_actuation(drive, lp, supply, coil_temp, peak_time, duty, frequency,
+                                hold_time, r_factor, l_factor, points, label)
     if isinstance(lp.inductance, FluxCoil):   # a saturating coil: its own sampling
         return _flux_actuation(drive, lp, supply, peak_time, duty, frequency, hold_time,
                                points, label)
     v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
-    if split_decay(drive):
-        return _split_actuation(drive, lp, supply, coil_temp, peak_time, duty, frequency,
-                                hold_time, r_factor, l_factor, points, label)
     big = 40 * points
     ts, cs, ons = [], [], []
 
     # Peak: full on from zero.
     i0 = peak_samples(peak_time, v, r_on, ind, big, ts, cs, ons, drive)
+    if lp.mixed is not None:
+        return _mixed_actuation(drive, lp, supply, coil_temp, peak_time, i0, duty, frequency,
+                                hold_time, r_factor, l_factor, points, label, ts, cs, ons)
 
     # Hold: per-period start currents by scalar recurrence, then vectorised sampling.
     t_hold, i_hold, on_hold, t_offedge, i_off, _ = hold_samples(
@@ -146,6 +169,39 @@ def nominal_boost(drive: Drive, r_on: float, ind: float) -> boost_model.Boost:
     return boost_model.boost(s.boost, s.boost_capacitance, r_on + s.boost_resistance, ind)
 
 
+def _mixed_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_time: float,
+                     i0: float, duty: float, frequency: float, hold_time: float, r_factor: float,
+                     l_factor: float, points: int, label: str, ts: list, cs: list,
+                     ons: list) -> Waveform:
+    """:func:`actuation`'s hold and release with a full bridge's mixed decay
+    (:mod:`coildrive.model.mixed_waveform`): the switches see the fast path's voltage
+    while the current flows into the bus."""
+    from .mixed_waveform import mixed_hold_samples
+
+    t_hold, i_hold, on_hold, fast_hold, t_off, i_off = mixed_hold_samples(
+        peak_time, i0, float(lp.v_on), float(lp.r_on), float(lp.r_off), float(lp.inductance),
+        duty, frequency, hold_time, points, lp.mixed)
+    n_peak = sum(len(t) for t in ts)
+    ts.append(t_hold)
+    cs.append(i_hold)
+    ons.append(on_hold)
+    fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
+    w = release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_off, i_off, 40 * points,
+                         label, release_lp=fast)
+    mask = np.zeros(len(w.time), bool)
+    mask[n_peak:n_peak + len(t_hold)] = fast_hold
+    v_fast = fast.switch_voltage(drive, w.current)
+    return dataclasses.replace(w, switch_voltage=np.where(mask, v_fast, w.switch_voltage))
+
+
+def one_point(inductance):
+    """The coil of one operating point: H as a float, or a saturating coil's
+    :class:`~coildrive.model.flux.FluxCoil` with a scalar scale."""
+    if isinstance(inductance, FluxCoil):
+        return inductance.with_scale(float(np.ravel(inductance.scale)[0]))
+    return float(inductance)
+
+
 def _flux_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: float,
                     frequency: float, hold_time: float, points: int, label: str) -> Waveform:
     """:func:`actuation` of a saturating coil (:mod:`coildrive.model.flux_waveform`)."""
@@ -159,6 +215,37 @@ def _flux_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: flo
     v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
     events = {"on": 0.0, "hold": peak_time, "off": t_cut, "zero": t_cut + tz}
     return Waveform(time, current, on, v_sw, sense, events, label)
+
+
+#: With an eddy term, the time between the rows before and after a switch edge (s).
+EDGE = 1e-9
+
+
+def _eddy_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: float,
+                    frequency: float, hold_time: float, points: int, label: str) -> Waveform:
+    """:func:`actuation` with an eddy resistance (:mod:`coildrive.model.eddy_waveform`):
+    ``current`` is the terminal current, ``magnetising_current`` the flux's."""
+    from .eddy_waveform import actuation as eddy_samples
+
+    ts, cs, ms, ons, t_cut, t_zero = eddy_samples(drive, lp, peak_time, duty, frequency,
+                                                   hold_time, points)
+    time = np.concatenate(ts)
+    # each switch edge has a row before and after the step: the one after sits EDGE s
+    # later (a switch edge's own scale), so that time rises strictly
+    step = np.diff(time)
+    gap = min(EDGE, 0.01 * step[step > 1e-15].min(initial=1.0))
+    for _ in range(4):   # a step that also ends the conduction: three rows at one instant
+        same = np.flatnonzero(np.diff(time) <= 1e-15) + 1      # the same instant, to rounding
+        if same.size == 0:
+            break
+        time[same] = time[same - 1] + gap
+    current = np.concatenate(cs)
+    on = np.concatenate(ons).astype(np.int8)
+    v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
+    events = {"on": 0.0, "hold": peak_time, "off": t_cut, "zero": t_zero}
+    return Waveform(time, current, on, v_sw, sense, events, label,
+                    **node_columns(drive, supply, current, on, v_sw),
+                    magnetising_current=np.concatenate(ms))
 
 
 def peak_samples(peak_time: float, v: float, r_on: float, ind: float, big: int,
@@ -204,8 +291,31 @@ def release_waveform(drive: Drive, lp, supply: float, ts: list, cs: list, ons: l
     if rel is not lp:  # the release's switch voltage from its own path
         v_sw = np.where(time > t_off, _switch_and_sense(drive, rel, supply, current, on)[0], v_sw)
     events = {"on": 0.0, "hold": peak_time, "off": t_off, "zero": t_off + tz}
+    if full_bridge(drive):
+        v_sw, sense, extra = _bridge_columns(drive, supply, time, current, on, v_sw, t_off)
+        return Waveform(time, current, on, v_sw, sense, events, label, **extra)
     return Waveform(time, current, on, v_sw, sense, events, label,
                     **node_columns(drive, supply, current, on, v_sw))
+
+
+def _bridge_columns(drive: Drive, supply: float, time, current, on, v_fast, t_off: float):
+    """A full bridge's switch voltage (the highest of its four, V), sensed current (A), and
+    as keyword arguments its switches' states and the coil voltage (V), per sample: the
+    on-times drive through Q1 + Q4 (Q2 and Q3 hold off ``V_bus`` less the drops across
+    Q1 and a common-return sense resistor), the hold's off-times recirculate through Q2
+    + Q4 (Q1 holds off ``V_bus + R_sw i``), after the final turn-off ``t_off`` s all four
+    are open (``v_fast``: the fast decay's switch voltage, :func:`_switch_and_sense` of
+    the release loop)."""
+    sense = drive.board.sense
+    r_sw = drive.switch.on_resistance
+    r_return = sense.resistance if sense.position == "switch" else 0.0
+    phase = np.where(on == 1, 1, np.where(time > t_off, -1, 0))
+    v_sw = np.where(phase == 1, supply - current * (r_sw + r_return),
+                    np.where(phase == 0, supply + current * r_sw, v_fast))
+    coil = bridge.coil_voltage(supply, current, phase, r_sw, sense.resistance, sense.position == "coil",
+                               drive.freewheel.diode_drop)
+    sensed = current if sense.position == "coil" else current * on
+    return v_sw, sensed, {"switches": bridge.switch_states(phase), "coil_voltage": coil}
 
 
 def _split_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_time: float,
@@ -214,7 +324,8 @@ def _split_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_tim
     """:func:`actuation` with split decay: hold through the slow loop ``lp``, release
     through the fast one, the bypass opening as ``freewheel.bypass_lead`` says."""
     fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
-    v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
+    v, r_on, r_off, v_off = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off))
+    ind = one_point(lp.inductance)
     big = 40 * points
     ts, cs, ons = [], [], []
     i0 = peak_samples(peak_time, v, r_on, ind, big, ts, cs, ons, drive)
@@ -243,7 +354,8 @@ def split_release(drive: Drive, lp, fast, t_cut: float, i_cut: float, t_last: fl
     ``-bypass_lead`` s after it, the current decaying slowly until then. Returns
     ``(bypass opening time s, time the current reaches zero s)``.
     """
-    v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
+    v, r_on, r_off, v_off = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off))
+    ind = one_point(lp.inductance)
     f_off, f_v = float(fast.r_off), float(fast.v_off)
     lead = drive.freewheel.bypass_lead
     if lead >= 0:
@@ -362,7 +474,7 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
             schedule.append((start + period, False, points))
     i_max = float(p.v_on[0] / p.r_on[0])
     t_un = float(decay_time(min(float(p.stay_current[0]), i_max), i_max, p.r_off[0], p.v_off[0],
-                            p.l_closed[0]))
+                            p.coil_closed[0] if p.curves is not None else p.l_closed[0]))
     bound = float(time_bound(t_un, p.l_closed[0], p.r_off[0], p.mass[0], p.stroke[0],
                               p.damping[0], p.preload[0] + p.load[0]))
 
@@ -379,23 +491,24 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     tr = None
     if peak_time > 0:
         # Fast path: seated at the end of the peak and the hold current never below the
-        # stay current -- then the hold is the closed-form PWM of the seated coil.
+        # stay current -- then the hold is the closed-form PWM of the seated coil (with
+        # the coil's two curves, the seated curve's tabulated exact segments).
         head = simulate(p, schedule[:1], method=method, points=points)
         i0 = float(head.current[-1])
         if head.state == "seated":
             v, r_on, r_off, v_off = (float(a[0]) for a in (p.v_on, p.r_on, p.r_off, p.v_off))
+            seated = float(p.l_closed[0]) if p.curves is None else p.coil_closed[0]
             th, ih, oh, t_cut, i_cut, starts = hold_samples(
-                peak_time, i0, v, r_on, r_off, v_off, float(p.l_closed[0]), duty, frequency,
-                hold_time, points)
+                peak_time, i0, v, r_on, r_off, v_off, seated, duty, frequency, hold_time, points)
             if split and t_cut - t_on < t_open < t_cut and not np.any(th == t_open):
                 # a sample where the bypass opens, inside the last on-time
                 at = int(np.searchsorted(th, t_open))
-                i_open = rise_current(t_open - (t_cut - t_on), float(starts[-1]), v, r_on,
-                                      float(p.l_closed[0]))
+                i_open = float(rise_current(t_open - (t_cut - t_on), float(starts[-1]), v, r_on,
+                                            seated))
                 th, ih, oh = np.insert(th, at, t_open), np.insert(ih, at, i_open), np.insert(oh, at, 1.0)
             if float(np.min(starts)) >= float(p.stay_current[0]):
                 tail = simulate(p, release_segments(t_cut), state="seated",
-                                flux=float(p.l_closed[0]) * i_cut, method=method, points=points,
+                                flux=float(p.flux_closed(i_cut)[0]), method=method, points=points,
                                 stop=lambda r: r.state == "open" and not r.live, t0=t_cut,
                                 release_params=p_rel)
                 zeros = np.zeros_like(th)
@@ -454,28 +567,50 @@ def hold_samples(t_start: float, i0: float, v: float, r_on: float, r_off: float,
     period = 1.0 / frequency
     n = max(1, int(round(hold_time * frequency)))
     t_on, t_off = duty * period, (1.0 - duty) * period
-    e_on, e_off = math.exp(-t_on * r_on / ind), math.exp(-t_off * r_off / ind)
-    a, b = v / r_on, v_off / r_off
+    if isinstance(ind, FluxCoil):
+        # a saturating coil (the seated curve of an armature's two): its segments read
+        # from one point's tabulated exact times (model.flux_waveform.Track)
+        from .flux_waveform import Track
+
+        tr = Track(ind, v, r_on, r_off, v_off, i0)
+        rise, decay, to_zero = tr.rise, (lambda t, i: tr.decay(i, t)), tr.to_zero
+    else:
+        def rise(i, t):
+            return rise_current(t, i, v, r_on, ind)
+
+        def decay(t, i):
+            return decay_current(t, i, r_off, v_off, ind)
+
+        def to_zero(i):
+            return decay_time(0.0, i, r_off, v_off, ind)
     starts = np.empty(n)
     i = i0
-    for k in range(n):
-        starts[k] = i
-        top = a + (i - a) * e_on
-        i = max((top + b) * e_off - b, 0.0) if k < n - 1 else top
+    if isinstance(ind, FluxCoil):
+        for k in range(n):
+            starts[k] = i
+            top = float(rise(i, t_on))
+            i = float(decay(t_off, top)) if k < n - 1 else top
+    else:
+        e_on, e_off = math.exp(-t_on * r_on / ind), math.exp(-t_off * r_off / ind)
+        a, b = v / r_on, v_off / r_off
+        for k in range(n):
+            starts[k] = i
+            top = a + (i - a) * e_on
+            i = max((top + b) * e_off - b, 0.0) if k < n - 1 else top
     frac = np.linspace(0.0, 1.0, points + 1)
     t0 = peak_time + np.arange(n)[:, None] * period
     on_t = np.broadcast_to(frac[None, :] * t_on, (n, points + 1))
-    on_i = rise_current(on_t, starts[:, None], v, r_on, ind)
+    on_i = rise(starts[:, None], on_t)
     tops = on_i[:, -1]
     # The off segment's end is the next period's first sample.
     off_t = np.broadcast_to(frac[None, 1:-1] * t_off, (n, points - 1))
-    off_i = decay_current(off_t, tops[:, None], r_off, v_off, ind)
+    off_i = decay(off_t, tops[:, None])
     # Where the diode blocks (DCM), put a sample exactly at the zero crossing; in CCM the
     # extra sample goes mid-way through the last interval so every row has the same count.
-    t_zero = decay_time(0.0, tops, r_off, v_off, ind)
+    t_zero = to_zero(tops)
     extra = np.where(t_zero < t_off, t_zero, t_off * (points - 0.5) / points)
     off_t = np.concatenate([off_t, extra[:, None]], axis=1)
-    off_i = np.concatenate([off_i, decay_current(extra, tops, r_off, v_off, ind)[:, None]], axis=1)
+    off_i = np.concatenate([off_i, decay(extra, tops)[:, None]], axis=1)
     order = np.argsort(off_t, axis=1, kind="stable")
     off_t = np.take_along_axis(off_t, order, axis=1)
     off_i = np.take_along_axis(off_i, order, axis=1)

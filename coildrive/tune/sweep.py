@@ -624,11 +624,16 @@ def hold_toml(drive: Drive, c: Candidate) -> str:
 
 
 # --------------------------------------------------------------------------- the sweep
-def check_tunable(drive: Drive, who: str) -> None:
+def check_tunable(drive: Drive, who: str, sweep: bool = False) -> None:
     """Raise :class:`InputError` (naming the key) for a hold that tuning cannot step: a
-    current-mode hold, a closed-loop hold, a flux-linkage curve. ``who``: the start of the
-    message (``"coildrive tune sweeps"``, ``"live tuning steps"``); the offline sweep and
-    live tuning share these refusals."""
+    current-mode hold, a closed-loop hold, a mixed-decay hold, and for live tuning (``sweep``
+    false) a flux-linkage curve. ``who``: the start of the message (``"coildrive tune sweeps"``,
+    ``"live tuning steps"``); the offline sweep and live tuning share these refusals.
+    The offline sweep takes a curve: every figure is the curve's exact orbit
+    (:func:`coildrive.model.flux.orbit`), as in the design."""
+    if drive.hold.mode == "latch":
+        raise InputError(drive.source, "hold.mode", f"{who} the PWM of a hold; a latching coil has "
+                         "none: coildrive design sizes its pulses")
     if drive.hold.mode != "voltage":
         raise InputError(drive.source, "hold.mode", f"{who} the PWM of a voltage-mode hold; for "
                          "mode = \"current\" run coildrive design (it sizes the thresholds)")
@@ -636,11 +641,17 @@ def check_tunable(drive: Drive, who: str) -> None:
         raise InputError(drive.source, "hold.regulation", f"{who} a fixed or supply-table compare; "
                          "a closed-loop hold sets its own compare every PWM period and holds its "
                          "set-point at every corner: set hold.current and run coildrive design")
-    if drive.coil.flux_current:
-        raise InputError(drive.source, "coil.flux_current", "tuning does not support a flux-linkage "
-                         "curve yet (the sweep would solve ~10^5 exact orbits): tune with "
-                         "coil.inductance at the hold current's incremental value, then design "
-                         "with the curve")
+    if drive.coil.flux_current and not sweep:
+        raise InputError(drive.source, "coil.flux_current", "live tuning does not support a "
+                         "flux-linkage curve yet: tune offline (coildrive tune without --port), "
+                         "or live with coil.inductance at the hold current's incremental value")
+    if drive.hold.fast_fraction > 0:
+        raise InputError(drive.source, "hold.fast_fraction", "tuning does not step a mixed-decay "
+                         "hold yet: tune with fast_fraction = 0, then design with the fraction")
+    if drive.coil.eddy_resistance:
+        key = "coil.eddy_time_constant" if drive.coil.eddy_time_constant else "coil.eddy_resistance"
+        raise InputError(drive.source, key, "tuning does not support an eddy-current term yet: "
+                         "tune without it, then design with it")
 
 
 def tune(drive: Drive, options: TuneOptions | None = None) -> TuneResult:
@@ -650,7 +661,7 @@ def tune(drive: Drive, options: TuneOptions | None = None) -> TuneResult:
     """
     options = options or TuneOptions()
     options.check()
-    check_tunable(drive, "coildrive tune sweeps")
+    check_tunable(drive, "coildrive tune sweeps", sweep=True)
     t0 = time.perf_counter()
     grid = corner_grid(drive)
     f_lo, f_hi, f_src = frequency_range(drive, options)

@@ -5,6 +5,7 @@
  *   s <tick> <conversion> <on>             the switch hook
  *   p <tick> <conversion> <counts>         the PWM compare hook
  *   b <tick> <conversion> <closed>         the bypass hook
+ *   g <tick> <conversion> <masks>          a full bridge's hook: on-time mask + 16 x off-time mask
  *   x <state> <fault>                      after each scenario step
  * and the worst cycle counts of the handlers (AVR: Timer1 at clk/1; host: 0):
  *   c <name> <cycles>
@@ -125,6 +126,9 @@ static void log_add(uint8_t kind, int32_t value)
 void coil_port_switch(uint8_t on) { sw = on; log_add('s', on); }
 void coil_port_pwm_compare(coil_compare_t counts) { compare = counts; log_add('p', (int32_t)counts); }
 void coil_port_bypass(uint8_t closed) { bypass = closed; log_add('b', closed); }
+#ifdef COIL_BRIDGE_PEAK_SWITCHES
+void coil_port_bridge(uint8_t on_time, uint8_t off_time) { log_add('g', (int32_t)(on_time + 16u * off_time)); }
+#endif
 void coil_port_adc_start(void) { }
 coil_adc_t coil_port_read_current(void) { return (coil_adc_t)current; }
 coil_adc_t coil_port_read_supply(void) { return (coil_adc_t)supply; }

@@ -1,0 +1,43 @@
+"""The firmware header of a latching coil: both pulse lengths and the shortest interval
+between pulses as C constants (``codegen_templates/latch_header.h.j2``). Pure: a
+:class:`~coildrive.design.latch.LatchDesign` in, text out."""
+
+from __future__ import annotations
+
+import math
+
+from ..design.latch import LatchDesign
+from ..resources import data_dir
+from .header import Constant, check_prefix
+
+
+def latch_constants(d: LatchDesign, m: str) -> list[Constant]:
+    """The header's constants (scheduler ticks at ``tick.rate``; the interval in ms too)."""
+    r = d.latch
+    by = {p.name: p for p in r.pulses}
+    s, t = by["set"], by["reset"]
+    out = [Constant(f"{m}_LATCH", 1, "a latching coil: set and reset pulses, no hold"),
+           Constant(f"{m}_TICK_RATE_HZ", round(r.tick_rate_hz), "scheduler tick rate"),
+           Constant(f"{m}_SET_PULSE_TICKS", s.ticks,
+                    f"set pulse {s.time_s * 1e3:.4g} ms ({s.governed_by}, +1 tick), {s.switches}"),
+           Constant(f"{m}_RESET_PULSE_TICKS", t.ticks,
+                    f"reset pulse {t.time_s * 1e3:.4g} ms ({t.governed_by}, +1 tick), {t.switches}"),
+           Constant(f"{m}_MIN_INTERVAL_TICKS", r.interval_ticks,
+                    f"shortest start-to-start interval between any two pulses ({r.governed_by})"),
+           Constant(f"{m}_MIN_INTERVAL_MS", math.ceil(r.interval_s * 1e3 - 1e-9),
+                    f"the same in ms ({r.interval_s * 1e3:.4g} ms)"),
+           Constant(f"{m}_DECAY_TICKS", math.ceil(max(p.decay_time_s for p in r.pulses) * r.tick_rate_hz - 1e-9),
+                    "after a pulse the current is zero within this (never start the other polarity sooner)")]
+    return out
+
+
+def generate_latch_header(design: LatchDesign, prefix: str = "COIL") -> str:
+    """Render the C header of a latching coil; ``prefix`` names the macros."""
+    import jinja2  # only the header path pays for it
+
+    m = check_prefix(prefix).upper()
+    env = jinja2.Environment(
+        loader=jinja2.FileSystemLoader(str(data_dir("codegen_templates"))),
+        undefined=jinja2.StrictUndefined, keep_trailing_newline=True, trim_blocks=True, lstrip_blocks=True)
+    return env.get_template("latch_header.h.j2").render(
+        d=design, m=m, guard=f"{m}_LATCH_H", constants=latch_constants(design, m))

@@ -1,0 +1,395 @@
+"""A latching (bistable) coil (``[hold] mode = "latch"``): a set pulse and a reset pulse,
+no hold.
+
+Each pulse is sized like the peak (:mod:`coildrive.design.peak`): the longest of the
+worst time to its current x its margin and the time the shortest real pulse needs to
+carry ``current_margin`` x that current (plus its settle time), in whole scheduler ticks
+plus one. The set pulse takes ``[pull_in]``, the reset pulse ``[reset]``; on a full bridge
+both drive the one coil (the reset with the other polarity: Q3 + Q2 instead of Q1 + Q4),
+with a reset winding (``[reset_coil]``) each winding has its own switch. The worst
+corner of a pulse's length is the lowest supply (less ``hold.recharge_tolerance`` when
+the pulses come from a capacitor behind ``supply.source_resistance``, whose droop the
+rise includes) with the coil at ``thermal.max_coil_temp`` (the interval below keeps it
+there or cooler), highest resistance and inductance (and sense resistance, with its
+``resistance_tolerance``).
+
+Per pulse: its energy from the supply, into the coil's copper, the switches and sense
+resistor, the freewheel path, and back to the bus (a bridge's fast decay) at the corner
+where the supply gives the most (the longest pulse, the highest supply, the cold coil,
+the lowest resistance; on a stiff bus -- a drooping one gives less); the time its
+current takes to reach zero after it; the switch voltage at its end. The shortest
+interval between pulses (start to start) is the longest of: the pulse and its decay to
+zero, the coil's temperature (:mod:`coildrive.model.latch`: the larger pulse's copper
+heat every interval, from the hottest ambient, up to ``thermal.max_coil_temp``), and the
+capacitor's recharge to the bus the pulses were designed from.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import itertools
+import math
+from dataclasses import asdict, dataclass
+
+import numpy as np
+
+from .. import __version__
+from ..config import Drive
+from ..jsondoc import document_head, json_ready
+from ..model import latch as latch_model
+from ..model import supply as bus_model
+from ..model.bridge import pump_up
+from ..model.circuit import freewheel_element_energy, full_bridge, loop
+from ..model.rl import decay_integrals, decay_time, rise_current, rise_integrals
+from ..model.topology import topology_of
+from .checks import SAFETY_CAUTION
+from .corners import tolerance_label
+from .figures import worst
+from .peak import _ticks, requirement
+from .result import Check, Verdict
+from .supply import rise_time, steady_current
+
+
+@dataclass(frozen=True)
+class PulseResult:
+    """One pulse (``design --json`` ``latch.pulses[]``). Currents A, times s, energies J,
+    voltages V; ``*_corner`` names where a figure comes from.
+
+    ``ticks``: its length in scheduler ticks (``None`` when its current is never reached:
+    ``not_reached`` says where and why); ``time_s`` the longest real pulse (``ticks`` /
+    rate), ``shortest_s`` the shortest (one tick less). ``worst_time_s``: the worst time to
+    ``current_a``; ``force_time_s`` to ``force_current_a`` (``current_margin`` x it);
+    ``governed_by`` which of the two set the length. ``end_current_a``: the current at
+    the end of the shortest pulse at the worst corner. Energies of one pulse at
+    ``energy_corner``: ``supply_j`` (from the supply while on), ``copper_j`` (the coil's
+    copper, pulse and decay), ``switch_sense_j`` (the switches and the sense resistor),
+    ``freewheel_j`` (the freewheel path: a bridge's two body diodes), ``returned_j`` (back
+    to the bus: a bridge's fast decay; 0 otherwise); ``supply_j`` is the sum of the other
+    four. ``decay_time_s``: after the pulse, the longest time to zero current.
+    ``peak_switch_voltage_v``: the switch's highest voltage at the pulse's end (a bus
+    pumped by a bridge's fast decay with ``supply.sink = false`` included).
+    ``droop_v``: how far a pulse from the capacitor pulls the bus down (0 on a stiff bus);
+    ``recharge_time_s`` how long it then needs to be back within the recharge tolerance
+    (the longest, at ``recharge_corner``; its supply is the source's). ``lowest_node_v``:
+    a high-side switch's node at the pulse's end, below ground (``None`` for the others).
+    """
+
+    name: str
+    winding: str
+    switches: str
+    current_a: float
+    margin: float
+    current_margin: float
+    settle_time_s: float
+    ticks: int | None
+    time_s: float
+    shortest_s: float
+    worst_time_s: float
+    worst_corner: str
+    force_current_a: float
+    force_time_s: float
+    governed_by: str
+    end_current_a: float
+    not_reached: str | None
+    supply_j: float
+    copper_j: float
+    switch_sense_j: float
+    freewheel_j: float
+    returned_j: float
+    energy_corner: str
+    decay_time_s: float
+    peak_switch_voltage_v: float
+    switch_voltage_corner: str
+    droop_v: float
+    recharge_time_s: float
+    recharge_corner: str
+    lowest_node_v: float | None = None
+
+
+@dataclass(frozen=True)
+class LatchResult:
+    """The latching coil's design (``design --json`` key ``latch``). ``interval_s``: the
+    shortest safe time from the start of one pulse to the start of the next (either
+    pulse), ``interval_ticks`` in scheduler ticks, ``governed_by`` what sets it; its parts:
+    ``decay_interval_s`` (the pulse and its decay to zero), ``thermal_interval_s`` (the
+    coil's temperature; 0 without self-heating) and ``recharge_interval_s`` (the
+    capacitor; 0 on a stiff bus). ``pulse_heat_j``: the copper heat per pulse the
+    thermal interval is for (the larger pulse's), ``coil_rise_per_pulse_k`` = that / the
+    heat capacity, ``hottest_coil_c`` the coil just after a pulse when pulsing at the
+    interval (from ``ambient.max``), ``coil_limit_c`` the limit."""
+
+    topology: str
+    pulses: list[PulseResult]
+    interval_s: float
+    interval_ticks: int | None
+    governed_by: str
+    decay_interval_s: float
+    thermal_interval_s: float
+    recharge_interval_s: float
+    pulse_heat_j: float
+    coil_rise_per_pulse_k: float
+    hottest_coil_c: float
+    coil_limit_c: float
+    recharge_tolerance: float
+    tick_rate_hz: float
+
+
+@dataclass(frozen=True)
+class LatchDesign(Verdict):
+    """A latching coil's design: every output (table, JSON, header, simulate) reads it."""
+
+    drive: Drive
+    latch: LatchResult
+    checks: list[Check]
+    cautions: list[str]
+    version: str = __version__
+    input_hash: str = ""
+
+    def to_dict(self) -> dict:
+        """The ``design --json`` document of a latching coil."""
+        return json_ready({**document_head(self.drive, self.version, self.input_hash), "ok": self.ok,
+                           "latch": asdict(self.latch), "checks": [asdict(c) for c in self.checks],
+                           "cautions": list(self.cautions)})
+
+
+@dataclass(frozen=True)
+class _Points:
+    """The pulse corners: supply x coil temperature x resistance x inductance factors."""
+
+    supply: np.ndarray
+    temp: np.ndarray
+    r_factor: np.ndarray
+    l_factor: np.ndarray
+    sense_factor: np.ndarray | float = 1.0
+
+    def label(self, k: int) -> str:
+        sense = np.broadcast_to(self.sense_factor, self.supply.shape)[k]
+        return (f"{self.supply[k]:.4g} V, coil {self.temp[k]:g} degC, "
+                f"{tolerance_label('R', self.r_factor[k])}, {tolerance_label('L', self.l_factor[k])}"
+                + ("" if sense == 1.0 else f", {tolerance_label('R_sense', sense)}"))
+
+
+def _points(drive: Drive, coil, scale: float) -> _Points:
+    """Every corner of the pulses: the supply's ends (the lower one times ``scale``), the
+    coil cold (``ambient.min``) and at its limit, and both ends of each tolerance (the
+    coil's resistance and inductance, the sense resistor's)."""
+    rt, lt = coil.resistance_tolerance, coil.inductance_tolerance
+    st = drive.board.sense.resistance_tolerance
+    grid = list(itertools.product((drive.supply.min * scale, drive.supply.max),
+                                  (drive.ambient.min, drive.thermal.max_coil_temp),
+                                  sorted({1 - rt, 1 + rt}), sorted({1 - lt, 1 + lt}),
+                                  sorted({1 - st, 1 + st})))
+    return _Points(*(np.array(a, float) for a in zip(*grid)))
+
+
+def winding_drive(drive: Drive, reset: bool) -> Drive:
+    """The drive as the model sees one winding: the set coil, or the reset winding in its
+    place (the same coil on a bridge)."""
+    if reset and drive.latch.reset_coil is not None:
+        return dataclasses.replace(drive, coil=drive.latch.reset_coil)
+    return drive
+
+
+def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
+    """Size one pulse and give its figures (module docstring)."""
+    lt = drive.latch
+    wd = winding_drive(drive, reset)
+    coil = wd.coil
+    if reset:
+        name, current, margin, cm, settle = "reset", lt.reset_current, lt.reset_margin, \
+            lt.reset_current_margin, lt.reset_settle_time
+    else:
+        p = drive.pull_in
+        name, current, margin, cm, settle = "set", p.current, p.margin, p.current_margin, p.settle_time
+    bridge = full_bridge(drive)
+    winding = "coil" if bridge or not reset else "reset_coil"
+    switches = (("Q3 + Q2 (the other polarity)" if reset else "Q1 + Q4") if bridge else
+                ("the reset winding's switch" if reset else "the set winding's switch"))
+    droops = drive.supply.droops
+    scale = 1.0 - lt.recharge_tolerance if droops else 1.0
+    pts = _points(drive, coil, scale)
+    lp = loop(wd, pts.supply, pts.temp, pts.r_factor, pts.l_factor, sense_factor=pts.sense_factor)
+    t_req = rise_time(wd, lp, current, lp.inductance)
+    t_force = rise_time(wd, lp, cm * current, lp.inductance)
+    ticks, by_time, by_force = requirement(drive, t_req, t_force, margin, settle)
+    rate = drive.board.tick.rate
+    k_req = worst(t_req)
+    checks = []
+    not_reached = None
+    if ticks is None or by_force is None:
+        i_inf = steady_current(wd, lp)
+        k = int(np.argmin(i_inf))
+        need = current if ticks is None else cm * current
+        not_reached = (f"not reached: steady current {float(i_inf[k]):.4g} A < {need:.4g} A at "
+                       f"{pts.label(k)}")
+        ticks = None
+    governed = "" if ticks is None else ("force margin" if (by_force or 0) > (by_time or 0) else "time margin")
+    t_long = ticks / rate if ticks else 0.0
+    t_short = (ticks - 1) / rate if ticks else 0.0
+    i_end = rise_current_at(wd, lp, t_short)
+    # energies of the longest pulse on a stiff bus (module docstring)
+    v, r_on, ind = lp.v_on, lp.r_on, lp.inductance
+    q_on, s_on = rise_integrals(t_long, 0.0, v, r_on, ind)
+    i_top = rise_current(t_long, 0.0, v, r_on, ind)
+    rel = loop(wd, pts.supply, pts.temp, pts.r_factor, pts.l_factor, path="release",
+               sense_factor=pts.sense_factor)
+    t_zero = decay_time(0.0, i_top, rel.r_off, rel.v_off, ind)
+    q_d, s_d = decay_integrals(t_zero, i_top, rel.r_off, rel.v_off, ind)
+    sense = drive.board.sense
+    n_sw = 2.0 if bridge else 1.0
+    sense_decay = bridge or sense.position == "coil"
+    supply_e = v * q_on
+    copper = lp.r_coil * (s_on + s_d)
+    r_sense = sense.resistance * pts.sense_factor
+    sw_sense = n_sw * drive.switch.on_resistance * s_on + r_sense * (s_on + (s_d if sense_decay else 0.0))
+    fw = freewheel_element_energy(wd, rel, q_d, s_d)
+    returned = v * q_d if bridge else 0.0 * q_d
+    k_e = worst(supply_e)
+    # the switch voltage at the end of the longest pulse, and a pumped bus
+    v_sw = rel.switch_voltage(wd, i_top)
+    topo = topology_of(drive)
+    node = (float(np.min(topo.node_voltage(pts.supply, v_sw, 0.0 * v_sw))) if topo.shows_node else None)
+    k_v = worst(v_sw)
+    v_sw_top = float(v_sw[k_v])
+    if bridge and not drive.supply.sink:
+        pu = pump_up(i_top, v, drive.supply.capacitance, rel.r_off, ind, rel.diode(wd))
+        k_p = worst(pu.v2)
+        drop = 0.0 if sense.position == "coil" else float(np.max(r_sense * i_top))
+        pumped = float(pu.v2[k_p]) + float(np.max(rel.diode(wd))) + drop
+        if pumped > v_sw_top:
+            v_sw_top, k_v = pumped, k_p
+        checks.append(Check(f"{name}_pump_up", pumped <= drive.switch.max_voltage * drive.switch.derating,
+                            f"the fast decay after the {name} pulse pumps the bus to {float(pu.v2[k_p]):.4g} V "
+                            f"({pts.label(k_p)}) on {drive.supply.capacitance * 1e6:.4g} uF"))
+    # the capacitor: droop of the longest pulse from a full capacitor, and its recharge
+    droop = recharge = 0.0
+    recharge_corner = ""
+    if droops:
+        s = drive.supply
+        full = loop(wd, np.where(pts.supply < drive.supply.max, drive.supply.min, pts.supply), pts.temp,
+                    pts.r_factor, pts.l_factor, sense_factor=pts.sense_factor)
+        b = bus_model.bus(full.v_on, s.source_resistance, s.capacitance, full.r_on, full.inductance)
+        low, _ = bus_model.lowest_bus(np.full(full.v_on.shape, t_long), b)
+        dv = full.v_on - low
+        t_rc = latch_model.recharge_time(dv, full.v_on, lt.recharge_tolerance, s.source_resistance,
+                                         s.capacitance)
+        k_r = worst(t_rc)
+        droop, recharge = float(np.max(dv)), float(t_rc[k_r])
+        recharge_corner = _Points(full.v_on, pts.temp, pts.r_factor, pts.l_factor, pts.sense_factor).label(k_r)
+    result = PulseResult(
+        name=name, winding=winding, switches=switches, current_a=current, margin=margin,
+        current_margin=cm, settle_time_s=settle, ticks=ticks, time_s=t_long, shortest_s=t_short,
+        worst_time_s=float(t_req[k_req]), worst_corner=pts.label(k_req), force_current_a=cm * current,
+        force_time_s=float(np.max(t_force)), governed_by=governed,
+        end_current_a=float(np.min(i_end)) if ticks else 0.0, not_reached=not_reached,
+        supply_j=float(supply_e[k_e]), copper_j=float(copper[k_e]), switch_sense_j=float(sw_sense[k_e]),
+        freewheel_j=float(fw[k_e]), returned_j=float(returned[k_e]), energy_corner=pts.label(k_e),
+        decay_time_s=float(np.max(t_zero)), peak_switch_voltage_v=v_sw_top,
+        switch_voltage_corner=pts.label(k_v), droop_v=droop, recharge_time_s=recharge,
+        recharge_corner=recharge_corner, lowest_node_v=node)
+    limit = drive.switch.max_voltage * drive.switch.derating
+    checks.insert(0, Check(f"{name}_pulse", ticks is not None,
+                           (f"{name} pulse {ticks} ticks ({t_long * 1e3:.4g} ms, {governed}): the shortest "
+                            f"({t_short * 1e3:.4g} ms) carries {result.end_current_a:.4g} A >= "
+                            f"{cm:g} x {current:.4g} A at the worst corner") if ticks else
+                           f"the {name} pulse's current is {not_reached}"))
+    checks.append(Check(f"{name}_switch_voltage", v_sw_top <= limit,
+                        f"the switches see up to {v_sw_top:.4g} V at the end of the {name} pulse "
+                        f"({result.switch_voltage_corner}) vs {limit:.4g} V ({drive.switch.derating:.0%} "
+                        f"of the {drive.switch.max_voltage:.4g} V rating)"))
+    return result, checks
+
+
+def rise_current_at(drive: Drive, lp, t) -> np.ndarray:
+    """Current (A) ``t`` s into a pulse at the points of ``lp`` (a drooping bus included)."""
+    from .supply import rise_current as bus_rise
+    return bus_rise(drive, lp, np.full(np.shape(lp.v_on), t), lp.inductance)
+
+
+def design_latch(drive: Drive) -> LatchDesign:
+    """Design the set and reset pulses of a latching coil and the shortest interval
+    between them (module docstring)."""
+    pulses, checks = [], []
+    for reset in (False, True):
+        p, c = _pulse(drive, reset)
+        pulses.append(p)
+        checks += c
+    th = drive.thermal
+    heat = max(p.copper_j for p in pulses)
+    limit = th.max_coil_temp - drive.ambient.max
+    rise = heat / th.capacity if th.capacity > 0 else 0.0
+    if th.resistance > 0:
+        t_th = float(latch_model.shortest_interval(heat, th.capacity, th.time_constant, limit))
+    else:
+        t_th = 0.0
+    t_decay = max(p.time_s + p.decay_time_s for p in pulses)
+    t_rc = max(p.time_s + p.recharge_time_s for p in pulses)
+    parts = {"the pulse and its decay to zero": t_decay, "the coil's temperature": t_th,
+             "the capacitor's recharge": t_rc}
+    governed = max(parts, key=parts.get)
+    interval = parts[governed]
+    rate = drive.board.tick.rate
+    ticks = math.ceil(interval * rate - 1e-9) if math.isfinite(interval) else None
+    if th.resistance > 0 and math.isfinite(t_th):
+        hottest = drive.ambient.max + float(latch_model.peak_rise(heat, interval, th.capacity, th.time_constant))
+    else:
+        hottest = drive.ambient.max + (math.inf if th.resistance > 0 else 0.0)
+    ok = math.isfinite(t_th)
+    checks.append(Check("coil_temperature", ok,
+                        f"pulses of {heat:.4g} J copper heat (+{rise:.3g} K each) every {interval * 1e3:.4g} ms "
+                        f"keep the coil at or below {hottest:.4g} degC from a {drive.ambient.max:g} degC "
+                        f"ambient (limit {th.max_coil_temp:g} degC)" if ok else
+                        f"one pulse's copper heat {heat:.4g} J raises the coil {rise:.3g} K, past the "
+                        f"{limit:.4g} K between the hottest ambient and thermal.max_coil_temp -- a shorter "
+                        "pulse, a higher supply or a coil with more heat capacity"))
+    result = LatchResult(
+        topology=drive.switch.topology, pulses=pulses, interval_s=interval, interval_ticks=ticks,
+        governed_by=governed, decay_interval_s=t_decay, thermal_interval_s=t_th,
+        recharge_interval_s=t_rc if drive.supply.droops else 0.0, pulse_heat_j=heat,
+        coil_rise_per_pulse_k=rise, hottest_coil_c=hottest, coil_limit_c=th.max_coil_temp,
+        recharge_tolerance=drive.latch.recharge_tolerance, tick_rate_hz=rate)
+    return LatchDesign(drive, result, checks, _cautions(drive, result), input_hash=drive.input_hash())
+
+
+def _cautions(drive: Drive, r: LatchResult) -> list[str]:
+    pace = (f"Never pulse faster than every {r.interval_s * 1e3:.4g} ms ({r.governed_by})"
+            if math.isfinite(r.interval_s) else "No interval keeps the coil below its limit (see the "
+            "coil_temperature check)")
+    out = [f"{pace}: the coil is "
+           "rated for pulses, not for continuous current, and a stuck-on switch burns it quickly -- "
+           "limit the pulse length in hardware too (a timer or a one-shot) where that can hurt.",
+           f"Turning a pulse off makes the switches see up to {max(p.peak_switch_voltage_v for p in r.pulses):.3g} V: "
+           "keep the freewheel path (or the bridge's body diodes) fitted and rated."]
+    nodes = [p.lowest_node_v for p in r.pulses if p.lowest_node_v is not None]
+    if nodes:
+        out.append(f"At the end of a pulse the high-side switch's node swings to {min(nodes):.3g} V: the "
+                   "gate driver's source pin, a diagnostics divider and the cable to the coil must take "
+                   "that negative voltage.")
+    if full_bridge(drive):
+        out.append("Never turn on both switches of one leg (Q1 with Q2, or Q3 with Q4): give the gate "
+                   "drivers a dead time (common practice).")
+    out.append(SAFETY_CAUTION)
+    return out
+
+
+def latch_waveforms(d: LatchDesign) -> dict:
+    """The set and reset pulses the plot draws, by label: at the nominal supply with the
+    coil at the hottest ambient, and at the pulses' worst corner (the lowest supply the
+    design takes, the coil at its limit, R and L high); the reset pulse one interval after
+    the set pulse (:func:`coildrive.model.latch_waveform.latch_actuation`)."""
+    from ..model.latch_waveform import latch_actuation
+
+    drive = d.drive
+    by = {p.name: p for p in d.latch.pulses}
+    scale = 1.0 - drive.latch.recharge_tolerance if drive.supply.droops else 1.0
+    rt, lt = drive.coil.resistance_tolerance, drive.coil.inductance_tolerance
+    points = {f"nominal: {drive.supply.nominal:g} V, coil {drive.ambient.max:g} degC":
+              (drive.supply.nominal, drive.ambient.max, 1.0, 1.0),
+              f"worst: {drive.supply.min * scale:.4g} V, coil {drive.thermal.max_coil_temp:g} degC, "
+              f"R{rt * 100:+.3g}%, L{lt * 100:+.3g}%":
+              (drive.supply.min * scale, drive.thermal.max_coil_temp, 1 + rt, 1 + lt)}
+    # no safe interval (a failing coil_temperature check): the reset right after the set decays
+    gap = d.latch.interval_s if math.isfinite(d.latch.interval_s) else 0.0
+    return {label: latch_actuation(drive, winding_drive(drive, True), v, t, by["set"].time_s,
+                                   by["reset"].time_s, gap, rf, lf, 400)
+            for label, (v, t, rf, lf) in points.items()}

@@ -1,0 +1,58 @@
+"""The terminal report of a latching coil's design (reads a LatchDesign, computes nothing)."""
+
+from __future__ import annotations
+
+from rich.console import Console
+from rich.markup import escape
+from rich.table import Table
+
+from ..console import print_cautions, print_verdict
+from .latch import LatchDesign
+from .report import checks_table
+
+
+def latch_table(d: LatchDesign) -> Table:
+    """rich table of both pulses and the interval."""
+    r = d.latch
+    circuit = ("full bridge: set Q1 + Q4, reset Q3 + Q2 (the other polarity), fast decay after each"
+               if r.topology == "full_bridge" else
+               f"two windings, each on its own {r.topology.replace('_', '-')} switch and freewheel path")
+    t = Table(title=f"coildrive design: {d.drive.name} on {d.drive.board.name} (latching coil)")
+    t.add_column("figure")
+    t.add_column("value", justify="right")
+    t.add_column("where / how")
+    t.add_row("circuit", "latch", escape(circuit))
+    for p in r.pulses:
+        if p.ticks is None:
+            t.add_row(f"{p.name} pulse", "none", escape(p.not_reached or ""))
+            continue
+        t.add_row(f"{p.name} pulse", f"{p.time_s * 1e3:.4g} ms",
+                  escape(f"{p.ticks} ticks ({p.governed_by}); {p.switches}; worst time to {p.current_a:.4g} A "
+                         f"{p.worst_time_s * 1e3:.4g} ms ({p.worst_corner}); the shortest pulse carries "
+                         f"{p.end_current_a:.4g} A there"))
+        t.add_row(f"  energy per {p.name} pulse", f"{p.supply_j * 1e3:.4g} mJ",
+                  escape(f"from the supply ({p.energy_corner}): copper {p.copper_j * 1e3:.4g} mJ, switches + "
+                         f"sense {p.switch_sense_j * 1e3:.4g} mJ, freewheel path {p.freewheel_j * 1e3:.4g} mJ, "
+                         f"back to the bus {p.returned_j * 1e3:.4g} mJ"))
+        t.add_row(f"  after the {p.name} pulse", f"{p.decay_time_s * 1e3:.4g} ms",
+                  escape(f"to zero current; switches up to {p.peak_switch_voltage_v:.4g} V "
+                         f"({p.switch_voltage_corner})"
+                         + (f"; the bus droops {p.droop_v:.4g} V and recharges in "
+                            f"{p.recharge_time_s * 1e3:.4g} ms" if p.droop_v > 0 else "")))
+    t.add_row("shortest interval", f"{r.interval_s * 1e3:.4g} ms" if r.interval_ticks else "none",
+              escape(f"{r.interval_ticks} ticks, start to start ({r.governed_by}); decay "
+                     f"{r.decay_interval_s * 1e3:.4g} ms, coil temperature {r.thermal_interval_s * 1e3:.4g} ms, "
+                     f"recharge {r.recharge_interval_s * 1e3:.4g} ms"))
+    t.add_row("coil temperature", f"{r.hottest_coil_c:.4g} degC",
+              escape(f"just after a pulse when pulsing at the interval: {r.pulse_heat_j * 1e3:.4g} mJ "
+                     f"(+{r.coil_rise_per_pulse_k:.3g} K) a pulse, limit {r.coil_limit_c:g} degC"))
+    return t
+
+
+def print_latch(d: LatchDesign, console: Console | None = None) -> None:
+    """Print the pulses, the checks and the cautions."""
+    console = console or Console()
+    console.print(latch_table(d))
+    console.print(checks_table(d))
+    print_cautions(console, d.cautions)
+    print_verdict(console, d.ok, "design ok", "design FAILED", [c.name for c in d.failed])

@@ -1,0 +1,617 @@
+"""Several channels on one board (a system file): one Design per channel, designed together.
+
+:func:`design_system` takes a :class:`~coildrive.system_file.System` and returns a
+:class:`~coildrive.design.result.SystemResult`:
+
+* **the shared timer** (:func:`shared_timer`): channels that the board's
+  ``[channels] timers`` puts on one timer get one prescaler and period that makes a
+  frequency inside every one of their windows (``hold.frequency`` +/-
+  ``hold.frequency_tolerance``), the longest such period (finest duty steps), then the
+  smallest worst relative error; each channel is then designed with it and keeps its own
+  compare. Windows that do not overlap, or an overlap no prescaler and period can hit,
+  are a one-line failure naming the channel;
+* **the stagger** (:func:`draw_bound`, :func:`find_stagger`): the peaks start ``s`` apart
+  (channel ``k`` of the file at ``k s``, or at its own ``offset``), ``s`` the least whole
+  number of scheduler ticks that keeps the rail's current within ``[supply]
+  current_limit``; the rail's current is bounded above in closed form, each channel by
+  one branch per peak its firmware may pick at the supplies that read as it, summed at a
+  common supply (docs/design-method.md, "Several channels");
+* **the droop** of the shared rail when the channels pull in together and staggered,
+  their PWM holds included (:mod:`coildrive.model.shared_bus`), with the system's
+  ``[supply]`` source resistance and bulk capacitance;
+* **the heat** in the shared freewheel parts and in the board.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+
+import numpy as np
+
+from ..errors import InputError
+from ..model import circuit, pwm, shared_bus
+from ..system_file import System, with_timer
+from . import envelope
+from .envelope import table_index
+from .result import Check, SystemChannel, SystemResult
+from .timer import MIN_PERIOD_TICKS, timer_for
+
+# --------------------------------------------------------------------------- shared timer
+def shared_timer(clock: float, bits: int, prescaler_max: int, allowed: tuple[int, ...],
+                 windows: list[tuple[str, float, float, float]]) -> tuple[int, int] | str:
+    """``(prescaler, period counts)`` whose frequency ``clock / (p N)`` lies inside every
+    window ``(name, low Hz, high Hz, asked Hz)``: the longest period, then the smallest
+    worst relative error against the asked frequencies, then the smallest prescaler. A
+    string says why there is none, naming the channel."""
+    top = max(windows, key=lambda w: w[1])          # the highest lower end
+    bottom = min(windows, key=lambda w: w[2])       # the lowest upper end
+    f_lo, f_hi = top[1], bottom[2]
+    if f_lo > f_hi:
+        return (f"channel {top[0]!r} (hold PWM {top[1]:.6g}..{top[2]:.6g} Hz) cannot share a timer "
+                f"with channel {bottom[0]!r} ({bottom[1]:.6g}..{bottom[2]:.6g} Hz): their frequency "
+                "windows (hold.frequency +/- hold.frequency_tolerance) do not overlap")
+    if allowed:
+        p = np.array(sorted(set(allowed)), dtype=np.int64)
+    else:
+        p = np.arange(1, int(min(prescaler_max, math.ceil(clock / (f_lo * MIN_PERIOD_TICKS)))) + 1,
+                      dtype=np.int64)
+    n_high = np.minimum(np.floor(clock / (p * f_lo) * (1 + 1e-12)), 2**bits).astype(np.int64)
+    n_low = np.maximum(np.ceil(clock / (p * f_hi) * (1 - 1e-12)), MIN_PERIOD_TICKS).astype(np.int64)
+    ok = n_high >= n_low
+    if not ok.any():
+        narrow = min(windows, key=lambda w: w[2] - w[1])
+        return (f"no prescaler and period of the {bits}-bit timer make a frequency within "
+                f"{f_lo:.6g}..{f_hi:.6g} Hz, where every channel's window overlaps (the narrowest is "
+                f"channel {narrow[0]!r}'s, {narrow[1]:.6g}..{narrow[2]:.6g} Hz)")
+    p, n = p[ok], n_high[ok]
+    f = clock / (p * n)
+    err = np.max([np.abs(f - w[3]) / w[3] for w in windows], axis=0)
+    best = np.lexsort((p, err, -n))[0]
+    return int(p[best]), int(n[best])
+
+
+# --------------------------------------------------------------------------- the rail's current
+#: Longest piece (s) the rail's bound is cut into between switching moments: the bound is
+#: rigorous for any length; shorter pieces make it tighter (a rise of 1 A/ms over 10 us
+#: overstates by 10 mA).
+PIECE_S = 10e-6
+#: Parts the coil's inductance range is cut into for the tail after a peak (the bound
+#: holds for any number; more parts make it tighter).
+TAIL_SPLITS = 6
+
+
+def _branch_draw(t, b: dict):
+    """Upper bound (A) of one branch's draw ``t`` s after switch-on (arrays broadcast)."""
+    t = np.asarray(t, float)
+    rise = b["supply_v"] / b["resistance_ohm"] * -np.expm1(
+        -np.clip(t, 0.0, None) * b["resistance_ohm"] / b["inductance_h"])
+    age = np.clip(t - b["peak_s"] - b["pwm_period_s"], 0.0, None)
+    tail = b["hold_top_a"] + np.max([e * np.exp(-age * b["slow_resistance_ohm"] / l)
+                                     for e, l in zip(b["excess_a"], b["tail_inductance_h"])], axis=0)
+    return np.where(t < 0, 0.0, np.where(t <= b["peak_s"], rise, tail))
+
+
+def draw_bound(t, params: dict) -> np.ndarray:
+    """Upper bound (A) of the current one channel draws from the rail ``t`` s after its
+    switch-on (0 before), from ``params`` (:func:`channel_bound_params`): the largest of
+    its branches, one for each peak the firmware may pick (a supply-table entry, or the one
+    peak), each at the highest supply that can be read as that entry. A branch: during
+    its peak (``t <= peak_s``) the stiff-bus rise ``V/R (1 - exp(-t R/L))`` with the coldest
+    loop resistance and the lowest inductance; after it the hold's top at that supply plus
+    the excess the peak leaves, which decays at least as fast as ``exp(-R t/L_max)`` from
+    the end of the first PWM period: ``hold_top + excess min(1, exp(-(t - peak - T_pwm) rate))``."""
+    t = np.asarray(t, float)
+    return np.max([_branch_draw(t, b) for b in params["branches"]], axis=0)
+
+
+def _tables(d):
+    """``(peak entries, duty lookup)`` of what the firmware runs: ``[(code or None, ticks)]``
+    and a function of supply-sense codes giving the hold's duty."""
+    pt = d.peak_table
+    peaks = ([(c, t) for c, t in zip(pt.adc_codes, pt.peak_ticks)] if pt is not None
+             else [(None, d.pull_in.peak_ticks)])
+    dt = d.duty_table
+    if d.hold.regulation == "supply_table" and dt.adc_codes:
+        comp = np.asarray(dt.compare_ticks, float) / d.timer.period_ticks
+        codes = list(dt.adc_codes)
+        return peaks, codes, lambda code: comp[table_index(codes, code)]
+    return peaks, [], lambda code: np.full(np.shape(code), d.hold.duty)
+
+
+def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
+    """The branches of a channel's rail-current bound (SI; :func:`draw_bound`), from its
+    Design, when the firmware's supply reading may sit ``reading_droop_v`` below the
+    source's voltage (the shared rail's droop at the moment it reads).
+
+    For each peak the firmware may pick (each supply-table entry ``e``, or the one peak):
+    the supplies ``V`` that can be read as ``e`` -- from the lowest that reads its code
+    with the divider reading high (:func:`~coildrive.design.envelope.lowest_supply_for_code`)
+    to the highest whose lowest reading (the divider reading low, the ADC truncating,
+    ``reading_droop_v`` lower) is still below the next entry's code
+    (:func:`~coildrive.design.envelope.bracket_tops`), within ``[supply] min..max``. The
+    rise and the hold only grow with ``V`` at a fixed peak and duty, so the branch takes
+    the top of that range: the peak's rise with the coldest coil (``ambient.min``) at its
+    lowest resistance and inductance, and the hold's orbit top (the highest over every
+    tolerance corner, cold coil) at the highest duty readable there -- the duty entry read
+    low, at the top of the range and just below each duty-table step inside it. The excess
+    over the orbit's bottom is taken against the lowest bottom in the range (its lowest
+    supply and readable duty, the hottest coil of the design's corners)."""
+    drive = d.drive
+    b = drive.board
+    rate_tick = b.tick.rate
+    v_min, v_max = drive.supply.min, drive.supply.max
+    f = d.hold.frequency_hz
+    tol = envelope.tolerances(drive)
+    factors = {"diode_factor": tol.diode_factor, "fast_factor": tol.fast_factor,
+               "sense_factor": tol.sense_factor}
+    t_cold = drive.ambient.min
+    t_hot = max(c.coil_temp_c for c in d.corners)
+    peaks, duty_codes, duty_of = _tables(d)
+
+    def low_code(v):         # the lowest code the firmware may read at source voltage v (just below it)
+        if b.supply_sense is None:
+            return np.zeros(np.shape(v), int)
+        return envelope.supply_codes(drive, np.maximum((np.asarray(v) - reading_droop_v) * (1 - 1e-9), 0.0))[0]
+
+    def high_code(v):
+        if b.supply_sense is None:
+            return np.zeros(np.shape(v), int)
+        return envelope.supply_codes(drive, v)[1]
+
+    def loops(v, temp):
+        return circuit.loop(drive, v, temp, tol.r_factor, tol.l_factor, **factors)
+
+    def top_of(code):        # highest source voltage whose lowest reading is below ``code``
+        step = envelope.supply_lsb(drive) * (1.0 + b.supply_sense.divider_tolerance)
+        return code * step + reading_droop_v
+
+    branches = []
+    for e, (code, ticks) in enumerate(peaks):
+        lo = v_min if (code is None or e == 0) else max(v_min, float(envelope.lowest_supply_for_code(drive, code)))
+        hi = v_max if e == len(peaks) - 1 else min(v_max, top_of(peaks[e + 1][0]))
+        if lo > v_max or hi < v_min or hi < lo:
+            continue
+        cands = [hi] + [top_of(c) for c in duty_codes[1:] if lo < top_of(c) < hi] if duty_codes else [hi]
+        cold = loops(np.array(cands)[:, None], t_cold)
+        duty_hi = np.asarray(duty_of(low_code(np.array(cands))), float)[:, None]
+        orbit = pwm.pwm_steady_state(duty_hi, f, cold.v_on, cold.r_on, cold.r_off, cold.v_off, cold.inductance)
+        hot = loops(lo, t_hot)
+        duty_lo = float(duty_of(high_code(np.array([hi])))[0])
+        bottom = float(np.min(pwm.pwm_steady_state(duty_lo, f, hot.v_on, hot.r_on, hot.r_off, hot.v_off,
+                                                   hot.inductance).i_min))
+        top_cold = loops(hi, t_cold)
+        r_on = float(np.min(top_cold.r_on))
+        l_min, l_max = float(np.min(top_cold.inductance)), float(np.max(top_cold.inductance))
+        r_slow = float(np.min(np.minimum(top_cold.r_on, top_cold.r_off)))
+        tp = ticks / rate_tick
+        # the inductance range in TAIL_SPLITS parts: a part's excess at its lowest L, its
+        # decay at its highest
+        ends = np.linspace(l_min, l_max, TAIL_SPLITS + 1) if l_max > l_min else np.array([l_min, l_min])
+        i_pe = hi / r_on * -np.expm1(-tp * r_on / ends[:-1])
+        branches.append({"supply_v": hi, "supply_low_v": lo, "resistance_ohm": r_on, "inductance_h": l_min,
+                         "peak_s": tp, "peak_end_a": float(i_pe[0]), "hold_top_a": float(np.max(orbit.i_max)),
+                         "excess_a": [max(0.0, float(x) - bottom) for x in i_pe],
+                         "tail_inductance_h": [float(x) for x in ends[1:]],
+                         "slow_resistance_ohm": r_slow, "pwm_period_s": 1.0 / f})
+    return {"reading_droop_v": reading_droop_v, **_summary(branches)}
+
+
+def _summary(branches: list[dict]) -> dict:
+    """``branches`` and what :func:`stagger_bound` reads of them: the longest peak, the
+    PWM period, the highest hold top, the largest excess, the highest hold top plus excess
+    and the slowest decay rate (1/s)."""
+    return {"branches": branches,
+            "peak_s": max(x["peak_s"] for x in branches),
+            "pwm_period_s": max(x["pwm_period_s"] for x in branches),
+            "hold_top_a": max(x["hold_top_a"] for x in branches),
+            "excess_a": max(x["excess_a"][0] for x in branches),
+            "top_a": max(x["hold_top_a"] + x["excess_a"][0] for x in branches),
+            "rate_per_s": min(x["slow_resistance_ohm"] / x["tail_inductance_h"][-1] for x in branches)}
+
+
+def supply_cells(params: list[dict]) -> list[tuple[float, float, list[list[int]]]]:
+    """The rail's supply range cut where any channel's branch range
+    (``supply_low_v..supply_v``) starts or ends: for each cell ``(low V, high V,
+    branches)``, each channel's branches readable inside it (all of them where the cell is outside the channel's own range).
+    Every channel on a rail sees the same source voltage, so the rail's current at a
+    supply in a cell is at most the sum over the channels of their largest readable
+    branch there. Cells with the same branches are given once."""
+    edges = sorted({x for p in params for b in p["branches"] for x in (b["supply_low_v"], b["supply_v"])})
+    if len(edges) < 2:
+        edges = edges * 2
+    cells, seen = [], set()
+    for a, z in zip(edges[:-1], edges[1:]):
+        if z <= a and len(edges) > 2:
+            continue
+        cell = []
+        for p in params:
+            got = [j for j, b in enumerate(p["branches"])
+                   if (b["supply_low_v"] < z and b["supply_v"] > a) or b["supply_low_v"] == b["supply_v"]]
+            cell.append(got or list(range(len(p["branches"]))))
+        key = tuple(tuple(c) for c in cell)
+        if key not in seen:
+            seen.add(key)
+            cells.append((a, z, cell))
+    return cells
+
+
+def total_bound(params: list[dict], offsets, cells=None) -> tuple[float, float]:
+    """``(upper bound A, time s)`` of the rail's current with the channels started at
+    ``offsets`` (s): between two switching moments (a switch-on, a branch's peak end, the
+    end of its first PWM period) every branch's rise only grows and its tail only falls,
+    so on each piece ``[u, w]`` (at most :data:`PIECE_S` long) a branch draws at most its
+    rise at ``w`` or the rest at ``u``; the rail, at a supply in one of the
+    :func:`supply_cells` (``cells``, computed when not given), at most the sum over the
+    channels of their largest branch readable there; the bound is the largest over the
+    cells and pieces."""
+    offsets = np.asarray(offsets, float)
+    cells = supply_cells(params) if cells is None else cells
+    marks = [offsets]
+    for o, p in zip(offsets, params):
+        for b in p["branches"]:
+            marks += [[o + b["peak_s"], o + b["peak_s"] + b["pwm_period_s"]]]
+    moments = np.unique(np.concatenate(marks))
+    moments = np.append(moments, moments[-1] + PIECE_S)
+    count = np.maximum(np.ceil(np.diff(moments) / PIECE_S).astype(int), 1)
+    start = np.repeat(moments[:-1], count)
+    step = np.repeat(np.diff(moments) / count, count)
+    k_in = np.arange(len(start)) - np.repeat(np.cumsum(count) - count, count)
+    u = start + k_in * step
+    w = u + step
+    mid = 0.5 * (u + w)
+    rows = []
+    for o, p in zip(offsets, params):
+        rows.append(np.array([np.where((mid > o) & (mid < o + b["peak_s"]), _branch_draw(w - o, b),
+                                       _branch_draw(u - o, b)) for b in p["branches"]]))
+    best, when = -1.0, 0.0
+    for _, _, cell in cells:
+        total = sum(r[idx].max(axis=0) for r, idx in zip(rows, cell))
+        k = int(np.argmax(total))
+        if total[k] > best:
+            best, when = float(total[k]), float(u[k])
+    return best, when
+
+
+def stagger_bound(params: list[dict], positions: list[int], fixed: list[float | None],
+                  limit: float) -> tuple[float | None, str]:
+    """A stagger ``S_hi`` (s) from which on the rail's :func:`total_bound` is proved to stay
+    within ``limit`` A (``None`` and the reason when no stagger can), for channels that
+    start at ``positions[k] x s`` unless ``fixed[k]`` gives their start (s).
+
+    Proof (docs/design-method.md, "Several channels"): once ``s >= W`` -- the longest peak
+    plus a PWM period, and past the peaks of the channels that do not move (a fixed start,
+    or position 0) -- no two moving peaks overlap and every earlier channel's peak ended
+    at least ``s - W`` before a moving peak starts, so the sum is at most
+    ``L_inf + sum_j excess_j exp(-(s - W) rate_j)``; ``L_inf`` is the worst of the still
+    channels' own sum and each moving channel's highest draw on the hold currents of the
+    channels started before it. So ``s >= W + max_j ln(n excess_j / (limit - L_inf)) /
+    rate_j`` is within the limit. The rail shares one supply: this is done in each of the
+    :func:`supply_cells` with the channels' branches readable there, and the largest
+    ``S_hi`` taken."""
+    s_hi = 0.0
+    for lo, hi, cell in supply_cells(params):
+        got, why = _stagger_bound_cell([_summary([p["branches"][j] for j in idx]) for p, idx in zip(params, cell)],
+                                       positions, fixed, limit)
+        if got is None:
+            return None, f"{why} (supply {lo:.4g}..{hi:.4g} V)"
+        s_hi = max(s_hi, got)
+    return s_hi, ""
+
+
+def _stagger_bound_cell(params: list[dict], positions: list[int], fixed: list[float | None],
+                        limit: float) -> tuple[float | None, str]:
+    """:func:`stagger_bound` with every channel's branches readable at one supply."""
+    n = len(params)
+    moving = sorted((k for k in range(n) if fixed[k] is None and positions[k] > 0),
+                    key=lambda k: positions[k])
+    still = [k for k in range(n) if k not in moving]
+    start = [0.0 if f is None else f for f in fixed]
+    top_still = total_bound([params[k] for k in still], [start[k] for k in still])[0] if still else 0.0
+    reach = max([start[k] + params[k]["peak_s"] + params[k]["pwm_period_s"] for k in still] + [0.0])
+    wait = max([reach] + [p["peak_s"] + p["pwm_period_s"] for p in params])
+    holds = sum(params[k]["hold_top_a"] for k in still)
+    l_inf, worst = top_still, "the channels that start at fixed times, together"
+    for k in moving:
+        peak = params[k]["top_a"]
+        if peak + holds > l_inf:
+            l_inf, worst = peak + holds, f"a peak on the hold currents of the channels before it"
+        holds += params[k]["hold_top_a"]
+    if not l_inf < limit:
+        return None, (f"the bound stays at {l_inf:.4g} A at any stagger ({worst}), not below the "
+                      f"limit {limit:.4g} A")
+    margin = limit - l_inf
+    extra = max([math.log(n * p["excess_a"] / margin) / p["rate_per_s"] for p in params
+                 if p["excess_a"] > 0 and n * p["excess_a"] > margin] + [0.0])
+    return wait + extra, ""
+
+
+def find_stagger(params: list[dict], fixed: list[float | None], limit: float, tick: float,
+                 rails: list[list[int]]) -> tuple[int | None, str]:
+    """The least stagger in whole ticks (``tick`` s) at which the :func:`total_bound` of
+    every rail (lists of channel indices) stays within ``limit`` A, channel ``k`` starting
+    at ``k`` staggers unless ``fixed[k]`` gives its start (whole ticks); and how it was
+    searched, or ``None`` and why not. Every tick from 0 up to the largest of the rails'
+    :func:`stagger_bound` is tried: the first that holds is the least."""
+    s_hi = 0.0
+    for ks in rails:
+        got, why = stagger_bound([params[k] for k in ks], list(ks), [fixed[k] for k in ks], limit)
+        if got is None:
+            return None, why
+        s_hi = max(s_hi, got)
+    last = math.ceil(s_hi / tick * (1 + 1e-9)) + 1
+    for s in range(last + 1):
+        off = [s * tick * k if fixed[k] is None else fixed[k] for k in range(len(params))]
+        if all(total_bound([params[k] for k in ks], [off[k] for k in ks])[0] <= limit for ks in rails):
+            return s, (f"the least whole tick: every tick from 0 tried, within the limit from "
+                       f"{s_hi * 1e3:.4g} ms on (proved)")
+    return None, f"no stagger up to {last} ticks keeps the bound within {limit:.4g} A"
+
+
+# --------------------------------------------------------------------------- the system
+def system_drives(system: System) -> list:
+    """Each channel's drive with its shared timer fixed (the channels' order); a one-line
+    :class:`InputError` naming the channel a shared timer cannot serve."""
+    board_ch = system.channels[0].drive.board.channels
+    timer = system.channels[0].drive.board.timer
+    channels = list(system.channels)
+    seen: set[tuple[int, ...]] = set()
+    for ch in system.channels:
+        group = board_ch.group("timers", ch.number)
+        members = [c for c in channels if c.number in group]
+        if group in seen or len(members) < 2:
+            continue
+        seen.add(group)
+        windows = [(c.name, c.drive.hold.frequency * (1 - c.drive.hold.frequency_tolerance),
+                    c.drive.hold.frequency * (1 + c.drive.hold.frequency_tolerance),
+                    c.drive.hold.frequency) for c in members]
+        got = shared_timer(timer.clock, timer.bits, timer.prescaler_max, timer.prescalers, windows)
+        if isinstance(got, str):
+            raise InputError(system.source, "channel", got)
+        channels = [with_timer(c, *got) if c.number in group else c for c in channels]
+    return [c.drive for c in channels]
+
+
+def design_system(system: System) -> SystemResult:
+    """Design every channel of ``system`` together (module docstring)."""
+    from . import design
+
+    board_ch = system.channels[0].drive.board.channels
+    timer = system.channels[0].drive.board.timer
+    channels = list(system.channels)
+    for ch in channels:
+        _refuse(system, ch)
+    checks: list[Check] = []
+    channels = [dataclasses.replace(c, drive=d) for c, d in zip(channels, system_drives(system))]
+    timers: list[dict] = []
+    seen: set[tuple[int, ...]] = set()
+    for ch in channels:
+        group = board_ch.group("timers", ch.number)
+        members = [c for c in channels if c.number in group]
+        if group in seen or len(members) < 2:
+            continue
+        seen.add(group)
+        p, n = members[0].drive.shared_timer
+        timers.append({"channels": [c.name for c in members], "board_channels": list(group),
+                       "prescaler": p, "period_ticks": n, "frequency_hz": timer.clock / (p * n),
+                       "compare_ticks": {}})
+    designs = [design(c.drive) for c in channels]
+    for t in timers:
+        for c, d in zip(channels, designs):
+            if c.name in t["channels"]:
+                t["compare_ticks"][c.name] = d.timer.compare_ticks
+    for c, d in zip(channels, designs):
+        if d.pull_in.peak_ticks is None:
+            raise InputError(c.drive.source, "pull_in.current",
+                             f"channel {c.name!r}: {d.pull_in.not_reached}, so it has no peak to stagger")
+    tick = 1.0 / channels[0].drive.board.tick.rate
+    rails = _rails(board_ch, channels)
+    limit = system.supply.current_limit
+    r_s = system.supply.source_resistance
+    # the firmware reads the rail drooped by at most R_s x the rail's current so far: within
+    # the limit, R_s x limit (docs/design-method.md, "Several channels")
+    params = [channel_bound_params(d, r_s * limit) for d in designs]
+    fixed = [None if c.offset is None else math.ceil(c.offset / tick - 1e-9) * tick for c in channels]
+    together = {}
+    for name, ks in rails.items():
+        got, delta = _consistent(designs, ks, [0.0] * len(ks), r_s)
+        together[name] = (got[0], delta)
+    if limit > 0:
+        stagger, how = find_stagger(params, fixed, limit, tick, list(rails.values()))
+        checks.append(Check("supply_current_limit", stagger is not None,
+                            f"peaks {stagger} ticks apart keep every rail within {limit:.4g} A ({how})"
+                            if stagger is not None else f"no stagger keeps the rail within "
+                            f"{limit:.4g} A: {how}"))
+    else:
+        stagger, how = 0, "no supply.current_limit given: the peaks start together"
+    s = stagger or 0
+    offset_ticks = [s * k if f is None else round(f / tick) for k, f in enumerate(fixed)]
+    offsets = [t * tick for t in offset_ticks]
+    staggered, reading = {}, {}
+    for name, ks in rails.items():
+        got = total_bound([params[k] for k in ks], [offsets[k] for k in ks])
+        reading[name] = r_s * limit
+        if r_s > 0 and not (limit > 0 and got[0] <= limit):
+            # beyond the limit (or none given) the readings may droop more: a consistent droop
+            got, reading[name] = _consistent(designs, ks, [offsets[k] for k in ks], r_s)
+            for k in ks:
+                params[k] = channel_bound_params(designs[k], reading[name])
+        staggered[name] = got
+    hold_avg = {name: sum(designs[k].hold.max_mean_current_a * designs[k].hold.duty for k in ks)
+                for name, ks in rails.items()}
+    droop = _droop(system, channels, designs, rails, offsets)
+    heat = _heat(board_ch, channels, designs)
+    out = [SystemChannel(c.name, c.number, c.drive.source, offset_ticks[k], offsets[k],
+                         c.offset is not None, params[k], d)
+           for k, (c, d) in enumerate(zip(channels, designs))]
+    rail_rows = [{"channels": [channels[k].name for k in ks], "board_channels": list(name),
+                  "peak_current_together_a": together[name][0],
+                  "together_reading_droop_v": together[name][1],
+                  "staggered_reading_droop_v": reading[name],
+                  "peak_current_staggered_a": staggered[name][0],
+                  "peak_current_time_s": staggered[name][1],
+                  "hold_average_current_a": hold_avg[name], **droop.get(name, {})}
+                 for name, ks in rails.items()]
+    return SystemResult(system.name, system.source, channels[0].drive.board.name, limit, s,
+                        how, timers, rail_rows, heat, out, checks)
+
+
+def _consistent(designs, ks: list[int], offsets, r_s: float) -> tuple[tuple[float, float], float]:
+    """``((bound A, time s), reading droop V)`` of the rail's current with the channels
+    ``ks`` started at ``offsets`` (s) when no limit keeps it low. With a source resistance
+    the readings droop by ``R_s`` x the rail's current, which this bound is itself of: a
+    droop ``delta`` with ``R_s x bound(delta) <= delta`` is consistent (the rail cannot pass
+    the bound before a reading sees more droop), found from 0 upwards; if it does not
+    settle in six steps, the droop of every channel's ``V_max/R``."""
+    def bound(delta: float) -> tuple[float, float]:
+        return total_bound([channel_bound_params(designs[k], delta) for k in ks], offsets)
+    got = bound(0.0)
+    if not r_s > 0:
+        return got, 0.0
+    for _ in range(6):
+        delta = r_s * got[0] * (1 + 1e-3) + 1e-6
+        got = bound(delta)
+        if r_s * got[0] <= delta:
+            return got, delta
+    delta = r_s * sum(designs[k].drive.supply.max / min(c.resistance_ohm for c in designs[k].corners)
+                      for k in ks)
+    return bound(delta), delta
+
+
+def rail_curves(result: SystemResult, points: int = 6000) -> list[dict]:
+    """What ``design SYSTEM.toml --plot`` draws, per rail: the bound of each channel's draw
+    and of the rail's current against time (s after the first switch-on), staggered as
+    designed and with the peaks together, each at the supply cell of :func:`supply_cells`
+    where the total is highest (its channels' largest readable branches there); the
+    limit (A, 0 = none). Arrays on ``points`` instants; never above the result's bound."""
+    by_name = {c.name: c for c in result.channels}
+    out = []
+    for rail in result.rails:
+        chans = [by_name[n] for n in rail["channels"]]
+        views = {}
+        for view, params, offsets in (
+                ("staggered", [channel_bound_params(c.design, rail["staggered_reading_droop_v"])
+                               for c in chans], [c.offset_s for c in chans]),
+                ("together", [channel_bound_params(c.design, rail["together_reading_droop_v"])
+                              for c in chans], [0.0] * len(chans))):
+            end = max(o + p["peak_s"] for o, p in zip(offsets, params)) * 1.25 + 1e-3
+            t = np.linspace(0.0, end, points)
+            rows = [np.array([_branch_draw(t - o, b) for b in p["branches"]]) for o, p in zip(offsets, params)]
+            best = None
+            for low, high, cell in supply_cells(params):
+                each = [r[idx].max(axis=0) for r, idx in zip(rows, cell)]
+                total = np.sum(each, axis=0)
+                if best is None or total.max() > best[1].max():
+                    best = (each, total, (low, high))
+            each, total, cell_v = best
+            views[view] = {"time_s": t, "channel_a": each, "total_a": total,
+                           "offsets_s": list(offsets), "supply_v": cell_v,
+                           "bound_a": rail["peak_current_staggered_a" if view == "staggered"
+                                           else "peak_current_together_a"]}
+        out.append({"channels": list(rail["channels"]), "limit_a": result.current_limit_a,
+                    "stagger_ticks": result.stagger_ticks, **views})
+    return out
+
+
+def _refuse(system: System, ch) -> None:
+    """What the rail's current bound is made for: a linear coil without a moving armature,
+    a voltage-mode hold (fixed or supply table) and one switch. Anything else is refused
+    in one line."""
+    d = ch.drive
+    why = None
+    if d.coil.flux_current:
+        key, why = "coil.flux_current", "a flux-linkage curve"
+    elif d.armature is not None:
+        key, why = "armature", "a moving armature"
+    elif d.hold.mode != "voltage" or d.hold.regulation == "closed_loop":
+        key, why = "hold.mode", f"a {d.hold.regulation.replace('_', ' ')} hold"
+    elif d.switch.topology == "full_bridge":
+        key, why = "switch.topology", "a full bridge"
+    if why is not None:
+        raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
+                         "in a system yet; expected a linear coil, no [armature], one switch and a "
+                         "voltage-mode fixed or supply-table hold")
+
+
+def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:
+    rails: dict[tuple[int, ...], list[int]] = {}
+    for k, c in enumerate(channels):
+        rails.setdefault(board_ch.group("supplies", c.number), []).append(k)
+    return rails
+
+
+def _droop(system: System, channels, designs, rails, offsets) -> dict:
+    """The shared rail's lowest bus, the peaks together and staggered, at the lowest supply
+    with each coil at the corner of the most current (cold, lowest resistance, inductance
+    and freewheel drop): every peak and every hold's PWM on the shared timer, the duty the
+    firmware reads there (the reading low: the highest); up to the last peak's end plus
+    five ``R_s C`` and two PWM periods. A hold whose off-times go through a clamp across
+    the switch draws from the rail while off too: then the peaks alone."""
+    s = system.supply
+    if not s.source_resistance > 0:
+        return {}
+    out = {}
+    for name, ks in rails.items():
+        r_on, r_off, v_off, l, tp, duty = [], [], [], [], [], []
+        clamp = False
+        for k in ks:
+            d = designs[k]
+            drv = d.drive
+            v = drv.supply.min
+            tol = envelope.tolerances(drv)
+            lp = circuit.loop(drv, v, drv.ambient.min, tol.r_factor, tol.l_factor,
+                              diode_factor=tol.diode_factor, fast_factor=tol.fast_factor,
+                              sense_factor=tol.sense_factor)
+            clamp = clamp or (drv.freewheel.type == "clamp" and not lp.bypassed)
+            r_on.append(float(np.min(lp.r_on)))
+            r_off.append(float(np.min(lp.r_off)))
+            v_off.append(float(np.min(lp.v_off)))
+            l.append(float(np.min(lp.inductance)))
+            tp.append(d.pull_in.peak_ticks / drv.board.tick.rate)
+            low = envelope.supply_codes(drv, v)[0] if drv.board.supply_sense is not None else 0
+            duty.append(float(_tables(d)[2](np.asarray(low))))
+        v = channels[ks[0]].drive.supply.min
+        period = max(1.0 / designs[k].hold.frequency_hz for k in ks)
+        on_s = [offsets[k] for k in ks]
+        rows = {}
+        for view, on in (("together", [0.0] * len(ks)), ("staggered", on_s)):
+            ends = [o + t for o, t in zip(on, tp)]
+            if clamp:
+                low, when = shared_bus.lowest_bus(v, s.source_resistance, s.capacitance, r_on, l, on, ends)
+            else:
+                t_end = max(ends) + 5 * s.source_resistance * s.capacitance + 2 * period
+                low, when = shared_bus.lowest_bus_pwm(v, s.source_resistance, s.capacitance, r_on, r_off,
+                                                      v_off, l, on, ends, duty, period, t_end)
+            rows[view] = (low, float(when))
+        out[name] = {"supply_v": v, "source_resistance_ohm": s.source_resistance,
+                     "capacitance_f": s.capacitance,
+                     "lowest_bus_together_v": rows["together"][0],
+                     "lowest_bus_together_time_s": rows["together"][1],
+                     "lowest_bus_staggered_v": rows["staggered"][0],
+                     "lowest_bus_staggered_time_s": rows["staggered"][1],
+                     "droop_method": ("the peaks alone (a hold through a clamp across the switch draws "
+                                      "from the rail while off)" if clamp else
+                                      "every peak and every hold's PWM on the shared timer, exact"),
+                     "hold_droop_v": s.source_resistance * sum(
+                         designs[k].hold.max_mean_current_a * designs[k].hold.duty for k in ks)}
+    return out
+
+
+def _heat(board_ch, channels, designs) -> dict:
+    """Heat on the board (W): each channel's freewheel path (the cycle's average with
+    ``[duty]``, else the continuous hold's at its worst corner) and switch (the hold's);
+    the shared freewheel parts' sums; and the board's total."""
+    per = []
+    for c, d in zip(channels, designs):
+        cyc = d.thermal_cycle.freewheel if d.thermal_cycle is not None else None
+        fw = cyc["average_power_w"] if cyc else d.hold.freewheel_power_w
+        per.append({"channel": c.name, "freewheel_w": fw, "switch_w": d.hold.switch_power_w,
+                    "freewheel_basis": "on/off cycle average" if cyc else "continuous hold"})
+    shared = []
+    for g in board_ch.freewheels:
+        ks = [k for k, c in enumerate(channels) if c.number in g]
+        if len(ks) > 1:
+            shared.append({"board_channels": list(g), "channels": [channels[k].name for k in ks],
+                           "power_w": sum(per[k]["freewheel_w"] for k in ks)})
+    return {"channels": per, "shared_freewheel": shared,
+            "board_w": sum(p["freewheel_w"] + p["switch_w"] for p in per)}

@@ -1,0 +1,135 @@
+"""A latching coil's set and reset pulses as a time series (``simulate`` of a latch).
+
+The set pulse switches on at t = 0 for ``set_time`` s and its current decays to zero
+through the release path; the reset pulse starts ``interval`` s after the set pulse and
+does the same (closed-form segments of :mod:`coildrive.model.rl`; on a drooping bus the
+rise of :mod:`coildrive.model.supply`, from a full capacitor). Between the pulses one
+sample marks the idle coil.
+
+A full bridge (:mod:`coildrive.model.bridge`): the current is signed (+ set through Q1 +
+Q4, - reset through Q3 + Q2); each switch's drain-source voltage is a column (``q1_v`` ..
+``q4_v``). After a pulse all four are off and the current flows into the bus through two
+body diodes (``-V_d`` across each, ``V_bus + V_d`` across the other two); with no current
+both legs are drawn at 0 V (they float: a real bridge's leg voltages then depend on its
+gate drivers' leakage). Two windings: one current, coil voltage and switch voltage column
+per winding; the windings' magnetic coupling is not modelled (each decays through its own
+freewheel path).
+
+Units: s, A, V.
+"""
+
+from __future__ import annotations
+
+import io
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..config import Drive
+from . import supply as bus_model
+from .circuit import full_bridge, loop
+from .rl import decay_current, decay_time, rise_current
+from .topology import coil_voltage
+
+
+@dataclass(frozen=True)
+class LatchWaveform:
+    """The two pulses: ``columns`` maps each CSV column (``time_s`` first, then
+    ``current_a``) to its array; ``events`` the set, reset and zero-current times (s)."""
+
+    columns: dict
+    events: dict
+
+    @property
+    def time(self) -> np.ndarray:
+        return self.columns["time_s"]
+
+    def to_csv(self) -> str:
+        buf = io.StringIO()
+        names = list(self.columns)
+        buf.write(",".join(names) + "\n")
+        np.savetxt(buf, np.column_stack([self.columns[n] for n in names]), delimiter=",",
+                   fmt=["%.9e"] * 2 + ["%.6e"] * (len(names) - 2))
+        return buf.getvalue()
+
+
+def _pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_factor: float,
+           t_pulse: float, points: int):
+    """One pulse from zero: ``(t, i, on, bus, t_zero)`` relative to its start (s, A, 0/1,
+    the bus while on V) and the time its current reaches zero."""
+    lp = loop(drive, supply, coil_temp, r_factor, l_factor)
+    rel = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
+    v, r_on, ind = float(lp.v_on), float(lp.r_on), float(lp.inductance)
+    t_on = np.linspace(0.0, t_pulse, points + 1)
+    if drive.supply.droops:
+        s = drive.supply
+        i_on, bus = bus_model.state(t_on, bus_model.bus(v, s.source_resistance, s.capacitance, r_on, ind))
+    else:
+        i_on, bus = rise_current(t_on, 0.0, v, r_on, ind), np.full(t_on.shape, v)
+    i_top = float(i_on[-1])
+    r_off, v_off = float(rel.r_off), float(rel.v_off)
+    tz = float(decay_time(0.0, i_top, r_off, v_off, ind))
+    t_d = np.linspace(0.0, tz, points + 1)[1:]
+    i_d = np.maximum(decay_current(t_d, i_top, r_off, v_off, ind), 0.0)
+    t = np.concatenate([t_on, t_pulse + t_d])
+    i = np.concatenate([i_on, i_d])
+    on = np.concatenate([np.ones(t_on.size), np.zeros(t_d.size)])
+    return t, i, on, np.concatenate([bus, np.full(t_d.size, supply)]), t_pulse + tz, rel
+
+
+def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float,
+                    set_time: float, reset_time: float, interval: float, r_factor: float = 1.0,
+                    l_factor: float = 1.0, points: int = 400) -> LatchWaveform:
+    """The set pulse at 0 and the reset pulse at ``interval`` s (``reset_drive``: the drive
+    as its winding sees it, :func:`coildrive.design.latch.winding_drive`)."""
+    ts, is_, ons, buses, tz_s, rel_s = _pulse(drive, supply, coil_temp, r_factor, l_factor, set_time, points)
+    tr, ir, onr, busr, tz_r, rel_r = _pulse(reset_drive, supply, coil_temp, r_factor, l_factor, reset_time,
+                                            points)
+    gap = max(interval, tz_s)
+    idle_t = np.array([0.5 * (tz_s + gap)]) if gap > tz_s else np.empty(0)
+    time = np.concatenate([ts, idle_t, gap + tr])
+    n_s, n_i = ts.size, idle_t.size
+    events = {"set": 0.0, "set_zero": tz_s, "reset": gap, "reset_zero": gap + tz_r}
+    zeros_i = np.zeros(n_i)
+    if full_bridge(drive):
+        cols = _bridge_columns(drive, supply, time, n_s, n_i, (is_, ons, buses), (ir, onr, busr))
+    else:
+        cols = {"time_s": time,
+                "current_a": np.concatenate([is_, zeros_i, np.zeros(tr.size)]),
+                "reset_current_a": np.concatenate([np.zeros(n_s), zeros_i, ir])}
+        for key, wd, rel, (i, on, bus), first in (("", drive, rel_s, (is_, ons, buses), True),
+                                                  ("reset_", reset_drive, rel_r, (ir, onr, busr), False)):
+            v_sw = np.where(on == 1, i * wd.switch.on_resistance,
+                            np.where(i > 0, rel.switch_voltage(wd, i), bus))
+            v_coil = coil_voltage(wd, bus, i, on, v_sw)
+            idle_sw, idle_coil = np.full(n_i, supply), zeros_i
+            other = np.full(tr.size if first else n_s, supply)
+            cols[f"{key}coil_voltage_v"] = (np.concatenate([v_coil, idle_coil, 0.0 * other]) if first
+                                            else np.concatenate([0.0 * other, idle_coil, v_coil]))
+            cols[f"{key}switch_voltage_v"] = (np.concatenate([v_sw, idle_sw, other]) if first
+                                              else np.concatenate([other, idle_sw, v_sw]))
+        cols = {k: cols[k] for k in ("time_s", "current_a", "reset_current_a", "coil_voltage_v",
+                                     "reset_coil_voltage_v", "switch_voltage_v", "reset_switch_voltage_v")}
+    return LatchWaveform(cols, events)
+
+
+def _bridge_columns(drive: Drive, supply: float, time, n_s: int, n_i: int, set_part, reset_part) -> dict:
+    """The signed current, the coil's voltage and each switch's voltage (module docstring)."""
+    r_sw, sense, v_d = drive.switch.on_resistance, drive.board.sense, drive.freewheel.diode_drop
+    inline = sense.position == "coil"
+    parts = []
+    for sign, (i, on, bus) in ((1.0, set_part), (-1.0, reset_part)):
+        flowing = (on == 0) & (i > 0)
+        drive_rail = 0.0 if inline else i * sense.resistance
+        fast_rail = 0.0 if inline else -i * sense.resistance
+        rail = np.where(on == 1, drive_rail, np.where(flowing, fast_rail, 0.0))
+        hi = np.where(on == 1, bus - i * r_sw, np.where(flowing, rail - v_d, 0.0))   # the driven leg
+        lo = np.where(on == 1, rail + i * r_sw, np.where(flowing, bus + v_d, 0.0))   # the returning leg
+        a, b = (hi, lo) if sign > 0 else (lo, hi)
+        parts.append((sign * i, a, b, rail, bus))
+        if sign > 0:
+            parts.append((np.zeros(n_i), np.zeros(n_i), np.zeros(n_i), np.zeros(n_i), np.full(n_i, supply)))
+    i, a, b, rail, bus = (np.concatenate(x) for x in zip(*parts))
+    v_coil = a - b - (i * sense.resistance if inline else 0.0)
+    return {"time_s": time, "current_a": i, "coil_voltage_v": v_coil, "q1_v": bus - a, "q2_v": a - rail,
+            "q3_v": bus - b, "q4_v": b - rail}

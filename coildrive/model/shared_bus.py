@@ -1,0 +1,199 @@
+"""Several coils on one drooping bus: their peaks behind one source resistance, exact.
+
+The circuit (a board's supply rail with ``n`` channels)::
+
+    V_s ──R_s──┬── bus v(t) ──R_1──L_1── switch 1 ── 0 V
+               C        ├─────R_2──L_2── switch 2 ── 0 V
+               │        ...
+              0 V
+
+Coil ``k`` (loop ``R_k`` ohm: coil, switch, sense; ``L_k`` H) draws from the bus from its
+switch-on ``on_k`` s to the end of its peak ``off_k`` s; after it, it freewheels in its own
+loop and draws nothing from the bus (a diode, Zener or resistor path across the coil).
+Between those moments the set of coils on the bus is fixed and the state
+``x = (i_active..., v)`` obeys the linear system with constant input::
+
+    L_k di_k/dt = v - R_k i_k            (each coil on the bus)
+    C dv/dt     = (V_s - v)/R_s - sum i_k
+
+so ``x(t) = x_ss + e^{A t} (x(0) - x_ss)``, evaluated through the eigen-decomposition of
+``A`` (an ``(m + 1)``-square matrix; numpy's ``eig``). A coil leaves the state at its
+peak's end and joins it at zero current. One coil is the 2x2 system of
+:mod:`coildrive.model.supply`, which the tests compare. :func:`lowest_bus_pwm` keeps the
+coils in the state after their peaks too: each PWM on-time of the shared timer puts a
+coil back on the bus, and while off it freewheels in its own loop down to zero. Units
+A, V, ohm, H, F, s.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+#: Samples of each piece between two switching moments where the lowest bus is looked for
+#: (then refined to the sample's neighbours by golden section).
+PIECE_SAMPLES = 2000
+#: Golden-section steps of the refinement (the bracket shrinks 0.618^60).
+GOLDEN_STEPS = 60
+
+
+def _piece(v_s, r_s, c, r, l):
+    """``(eigenvalues, eigenvectors, their inverse, steady state)`` of the system with the
+    coils ``r``, ``l`` (arrays, possibly empty) on the bus."""
+    m = len(r)
+    a = np.zeros((m + 1, m + 1))
+    for k in range(m):
+        a[k, k] = -r[k] / l[k]
+        a[k, m] = 1.0 / l[k]
+        a[m, k] = -1.0 / c
+    a[m, m] = -1.0 / (r_s * c)
+    lam, vec = np.linalg.eig(a)
+    # steady state: v = V_s / (1 + R_s sum 1/R_k), i_k = v / R_k
+    v_ss = v_s / (1.0 + r_s * float(np.sum(1.0 / np.asarray(r)))) if m else v_s
+    x_ss = np.append(v_ss / np.asarray(r, float), v_ss)
+    return lam, vec, np.linalg.inv(vec), x_ss
+
+
+def _evaluate(piece, x0, t):
+    lam, vec, inv, x_ss = piece
+    coef = inv @ (x0 - x_ss)
+    return (x_ss[:, None] + (vec @ (coef[:, None] * np.exp(np.outer(lam, t))))).real
+
+
+def lowest_bus(v_s: float, r_s: float, c: float, r, l, on, off) -> tuple[float, float]:
+    """``(lowest bus V, when s)`` from the first switch-on to the last peak's end, with
+    coil ``k`` (loop ``r[k]`` ohm, ``l[k]`` H) on the bus from ``on[k]`` to ``off[k]`` s
+    (module docstring). Exact between switching moments: the lowest of
+    :data:`PIECE_SAMPLES` samples of each piece, refined by golden section."""
+    r, l, on, off = (np.asarray(x, float) for x in (r, l, on, off))
+    moments = np.unique(np.concatenate([on, off]))
+    x = {}                       # coil index -> current, plus the bus
+    v = float(v_s)
+    best = (v, float(moments[0]))
+    for a_t, b_t in zip(moments[:-1], moments[1:]):
+        active = [k for k in range(len(r)) if on[k] <= a_t < off[k]]
+        for k in active:
+            x.setdefault(k, 0.0)
+        piece = _piece(v_s, r_s, c, r[active], l[active])
+        x0 = np.array([x[k] for k in active] + [v])
+        span = b_t - a_t
+        t = np.linspace(0.0, span, PIECE_SAMPLES)
+        bus = _evaluate(piece, x0, t)[-1]
+        j = int(np.argmin(bus))
+        lo, hi = t[max(j - 1, 0)], t[min(j + 1, len(t) - 1)]
+        g = (np.sqrt(5.0) - 1.0) / 2.0
+        for _ in range(GOLDEN_STEPS):     # the bus is smooth and unimodal next to its sample minimum
+            m1, m2 = hi - g * (hi - lo), lo + g * (hi - lo)
+            f1, f2 = _evaluate(piece, x0, np.array([m1, m2]))[-1]
+            lo, hi = (lo, m2) if f1 <= f2 else (m1, hi)
+        t_min = 0.5 * (lo + hi)
+        v_min = float(_evaluate(piece, x0, np.array([t_min]))[-1, 0])
+        v_min, t_min = min((v_min, t_min), (float(bus[j]), float(t[j])))
+        if v_min < best[0]:
+            best = (v_min, a_t + t_min)
+        end = _evaluate(piece, x0, np.array([span]))[:, 0]
+        for n, k in enumerate(active):
+            x[k] = float(end[n])
+        v = float(end[-1])
+        for k in [k for k in x if off[k] <= b_t]:
+            del x[k]
+    return best
+
+
+def _system(v_s, r_s, c, modes, r, l, v_off):
+    """``(A, b)`` of ``x' = A x + b`` for the coils in ``modes`` (``"on"``: on the bus
+    through ``r`` ohm; ``"off"``: freewheeling in its own loop, ``r`` ohm against
+    ``v_off`` V) and the bus, last."""
+    m = len(modes)
+    a = np.zeros((m + 1, m + 1))
+    b = np.zeros(m + 1)
+    for k, mode in enumerate(modes):
+        a[k, k] = -r[k] / l[k]
+        if mode == "on":
+            a[k, m] = 1.0 / l[k]
+            a[m, k] = -1.0 / c
+        else:
+            b[k] = -v_off[k] / l[k]
+    a[m, m] = -1.0 / (r_s * c)
+    b[m] = v_s / (r_s * c)
+    return a, b
+
+
+def lowest_bus_pwm(v_s: float, r_s: float, c: float, r_on, r_off, v_off, l, on, peak_end, duty,
+                   period: float, t_end: float, step: float = 2e-6) -> tuple[float, float]:
+    """``(lowest bus V, when s)`` from 0 to ``t_end`` s with every coil's peak *and* its PWM
+    hold on the bus: coil ``k`` (loop ``r_on[k]`` ohm on, ``r_off[k]`` ohm against
+    ``v_off[k]`` V freewheeling, ``l[k]`` H) is switched on at ``on[k]`` s, held on to
+    ``peak_end[k]`` s, then on from each period start of the shared timer (multiples of
+    ``period`` s) for ``duty[k]`` of it and freewheeling in its own loop (off the bus)
+    for the rest, stopping at zero (the diode blocks). Exact between switching moments
+    (a switch-on, a peak end, a timer edge, a freewheel current reaching zero, found in
+    closed form since a freewheeling coil is decoupled from the bus): each piece is
+    sampled every ``step`` s and the lowest sample's piece refined by golden section.
+    Units A, V, ohm, H, F, s."""
+    r_on, r_off, v_off, l, on, peak_end, duty = (np.asarray(x, float) for x in
+                                                  (r_on, r_off, v_off, l, on, peak_end, duty))
+    n = len(l)
+    edges = [np.arange(0.0, t_end + period, period)]
+    edges += [np.arange(0.0, t_end + period, period) + d * period for d in duty]
+    moments = np.concatenate([on, peak_end, [t_end], *edges])
+    moments = np.unique(moments[(moments >= 0.0) & (moments <= t_end)])
+    cur = np.zeros(n)
+    v = float(v_s)
+    t = 0.0
+    best = (v, 0.0, None)
+    j = 0
+    while t < t_end - 1e-15:
+        while j < len(moments) and moments[j] <= t + 1e-15:
+            j += 1
+        nxt = moments[j] if j < len(moments) else t_end
+        mid = 0.5 * (t + nxt)
+        modes, idx = [], []
+        for k in range(n):
+            if mid < on[k]:
+                continue
+            if mid < peak_end[k] or (mid % period) < duty[k] * period:
+                modes.append("on")
+            elif cur[k] > 0.0:
+                modes.append("off")
+            else:
+                continue
+            idx.append(k)
+        # a freewheeling current reaches zero: i(t) = -V/R + (i0 + V/R) exp(-t R/L)
+        for mode, k in zip(modes, idx):
+            if mode == "off" and v_off[k] > 0.0:
+                t_zero = l[k] / r_off[k] * np.log1p(cur[k] * r_off[k] / v_off[k])
+                nxt = min(nxt, t + t_zero)
+        rr = np.array([r_on[k] if m_ == "on" else r_off[k] for m_, k in zip(modes, idx)])
+        a, b = _system(v_s, r_s, c, modes, rr, l[idx], v_off[idx])
+        lam, vec = np.linalg.eig(a)
+        inv = np.linalg.inv(vec)
+        x_ss = np.linalg.solve(a, -b)
+        x0 = np.append(cur[idx], v)
+        piece = (lam, vec, inv, x_ss)
+        span = nxt - t
+        ts = np.linspace(0.0, span, max(3, int(np.ceil(span / step)) + 1))
+        bus = _evaluate(piece, x0, ts)[-1]
+        k_min = int(np.argmin(bus))
+        if bus[k_min] < best[0]:
+            best = (float(bus[k_min]), t + float(ts[k_min]), (piece, x0, t, ts, k_min))
+        end = _evaluate(piece, x0, np.array([span]))[:, 0]
+        for p, k in enumerate(idx):
+            cur[k] = float(end[p])
+            if modes[p] == "off" and cur[k] < 1e-12:   # reached zero at the piece's end: the diode blocks
+                cur[k] = 0.0
+        v = float(end[-1])
+        t = nxt
+    if best[2] is None:
+        return best[0], best[1]
+    piece, x0, t0, ts, k_min = best[2]
+    lo, hi = ts[max(k_min - 1, 0)], ts[min(k_min + 1, len(ts) - 1)]
+    g = (np.sqrt(5.0) - 1.0) / 2.0
+    for _ in range(GOLDEN_STEPS):
+        m1, m2 = hi - g * (hi - lo), lo + g * (hi - lo)
+        f1, f2 = _evaluate(piece, x0, np.array([m1, m2]))[-1]
+        lo, hi = (lo, m2) if f1 <= f2 else (m1, hi)
+    t_min = 0.5 * (lo + hi)
+    v_min = float(_evaluate(piece, x0, np.array([t_min]))[-1, 0])
+    if v_min < best[0]:
+        return v_min, t0 + t_min
+    return best[0], best[1]

@@ -1,0 +1,168 @@
+"""Mixed decay on a full bridge (``[hold] fast_fraction``): the three-segment orbit of
+coildrive.model.pwm (its ngspice reference is in tests/test_reference_ngspice_bridge.py),
+its limits, its energy balance, the design's figures, simulate and the header; and the
+refusals."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from typer.testing import CliRunner
+
+from conftest import BOARDS, EXAMPLES, require_tool
+from coildrive.cli import app
+from coildrive.codegen.header import generate_header
+from coildrive.config import load_drive
+from coildrive.design import design
+from coildrive.model.circuit import loop
+from coildrive.model.losses import hold_losses
+from coildrive.model.pwm import MixedDecay, duty_for_mean, pwm_steady_state
+
+BRIDGE = EXAMPLES / "dosing-valve-bridge-24v.toml"
+V, R_ON, R_SLOW, R_FAST, V_FAST, L = 24.0, 26.2, 26.07, 26.1, 25.6, 0.069
+
+
+def _variant(tmp_path, fraction, name="m.toml"):
+    path = tmp_path / name
+    text = BRIDGE.read_text().replace('frequency = "20 kHz"\n', f'frequency = "20 kHz"\nfast_fraction = {fraction}\n')
+    path.write_text(text.replace('board = "bridge-m32-fast"', f'board = "{BOARDS / "bridge-m32-fast.toml"}"'))
+    return path
+
+
+def _ss(duty, fraction, freq=20e3):
+    return pwm_steady_state(duty, freq, V, R_ON, R_SLOW, 0.0, L, mixed=MixedDecay(fraction, R_FAST, V_FAST))
+
+
+@settings(max_examples=40, deadline=None)
+@given(duty=st.floats(0.02, 0.98), freq=st.floats(1e3, 50e3))
+def test_the_ends_of_the_fraction_are_the_two_segment_orbits(duty, freq):
+    # m = 0 is the slow orbit, m = 1 the fast one (the two-segment closed form of model.pwm)
+    slow = pwm_steady_state(duty, freq, V, R_ON, R_SLOW, 0.0, L)
+    fast = pwm_steady_state(duty, freq, V, R_ON, R_FAST, V_FAST, L)
+    for m, ref in ((1e-300, slow), (1.0, fast)):
+        got = _ss(duty, m, freq)
+        for name in ("i_min", "i_max", "mean", "rms"):
+            assert float(getattr(got, name)) == pytest.approx(float(getattr(ref, name)), rel=1e-9, abs=1e-12), name
+
+
+@settings(max_examples=40, deadline=None)
+@given(duty=st.floats(0.05, 0.95), a=st.floats(0.0, 1.0), b=st.floats(0.0, 1.0))
+def test_more_fast_decay_never_raises_the_mean(duty, a, b):
+    # the fast path opposes the current with V_bus + 2 V_d where the slow one has none:
+    # more of it at the same duty can only lower the orbit (and return more to the bus)
+    lo, hi = sorted((a, b))
+    s_lo, s_hi = _ss(duty, lo), _ss(duty, hi)
+    assert float(s_hi.mean) <= float(s_lo.mean) * (1 + 1e-12) + 1e-15
+    assert float(s_hi.i_max) <= float(s_lo.i_max) * (1 + 1e-12) + 1e-15
+
+
+def test_duty_for_the_hold_current_reaches_it():
+    mixed = MixedDecay(0.3, np.array([R_FAST, R_FAST]), np.array([V_FAST, V_FAST]))
+    duty = duty_for_mean(0.2, 20e3, V, R_ON, R_SLOW, 0.0, L, mixed=mixed)
+    got = pwm_steady_state(duty, 20e3, V, R_ON, R_SLOW, 0.0, L, mixed=mixed).mean
+    assert np.all(got >= 0.2) and np.all(got < 0.2 * (1 + 1e-9))
+
+
+def test_mixed_hold_power_balances(tmp_path):
+    # Conservation of energy over one period of the periodic steady state (common
+    # practice): what the supply gives net of what the fast parts return is the copper's,
+    # the sense resistor's, the switches' and the body diodes'
+    drive = load_drive(_variant(tmp_path, 0.2))
+    lp = loop(drive, 24.0, 60.0)
+    ss = pwm_steady_state(0.45, 20e3, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance, mixed=lp.mixed)
+    loss = hold_losses(drive, lp, ss, 20e3)
+    assert float(loss.diode) == pytest.approx(2 * drive.freewheel.diode_drop * float(ss.charge_fast) * 20e3)
+    assert float(loss.balance_error()) == pytest.approx(0.0, abs=1e-12 * float(loss.supply))
+
+
+def test_fraction_zero_changes_no_output(tmp_path):
+    plain = CliRunner().invoke(app, ["design", str(BRIDGE), "--json"])
+    zero = CliRunner().invoke(app, ["design", str(_variant(tmp_path, 0)), "--json"])
+    a, b = json.loads(plain.stdout), json.loads(zero.stdout)
+    for doc in (a, b):
+        doc.pop("drive", None), doc.pop("input_hash", None), doc.pop("source", None)
+    assert a == b
+
+
+def test_design_reports_the_energy_returned_per_hold_period(tmp_path):
+    path = _variant(tmp_path, 0.3)
+    d = design(load_drive(path))
+    b = d.topology.bridge
+    assert b.hold_decay == "mixed" and b.hold_fast_fraction == 0.3
+    # the returned energy per period is V_bus x the fast part's charge at its corner
+    c = next(c for c in d.corners if c.label == b.hold_period_corner)
+    drive = load_drive(path)
+    lp = loop(drive, c.supply_v, c.coil_temp_c, c.resistance_ohm / float(loop(drive, 0.0, c.coil_temp_c).r_coil),
+              c.inductance_h / drive.coil.inductance)
+    ss = pwm_steady_state(c.hold_duty, d.hold.frequency_hz, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
+                          lp.inductance, mixed=lp.mixed)
+    assert b.returned_per_hold_period_j == pytest.approx(c.supply_v * float(ss.charge_fast), rel=1e-6)
+    # mixed decay needs more duty for the same hold current than slow decay
+    assert d.hold.duty > design(load_drive(BRIDGE)).hold.duty
+    res = CliRunner().invoke(app, ["design", str(path)])
+    assert res.exit_code == 0 and "mixed decay" in res.stdout
+
+
+def test_header_gives_the_fraction_and_compiles(tmp_path):
+    gcc = require_tool("gcc")
+    text = generate_header(design(load_drive(_variant(tmp_path, 0.3))))
+    assert "#define COIL_HOLD_FAST_Q16                 19661U" in text  # round(0.3 x 65536)
+    h = tmp_path / "drive.h"
+    h.write_text(text)
+    c = tmp_path / "main.c"
+    c.write_text('#include "drive.h"\nint main(void) { return (int)(COIL_HOLD_FAST_Q16 == 19661U ? 0 : 1); }\n')
+    import subprocess
+    out = subprocess.run([gcc, "-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic", str(c), "-o",
+                          str(tmp_path / "a.out")], capture_output=True, text=True)
+    assert out.returncode == 0, out.stderr
+
+
+def test_simulated_hold_takes_the_fast_path_first(tmp_path):
+    out = tmp_path / "w.csv"
+    path = _variant(tmp_path, 0.3)
+    res = CliRunner().invoke(app, ["simulate", str(path), "--supply", "24 V", "--coil-temp", "20 degC",
+                                   "--hold-time", "40 ms", "--csv", str(out)])
+    assert res.exit_code == 0, res.stderr
+    w = np.genfromtxt(out, delimiter=",", names=True)
+    drive = load_drive(path)
+    on, t, i, v = w["switch_on"], w["time_s"], w["current_a"], w["switch_voltage_v"]
+    k_off = int(np.flatnonzero(np.diff(on) < 0)[-1])
+    hold_off = (on == 0) & (t < t[k_off]) & (t > t[np.flatnonzero(np.diff(on) < 0)[0]])
+    # the off-times' switch voltage: V_bus + V_d while the current flows into the bus
+    # (sense inline), V_bus + R_switch i across the open high-side switch while it
+    # recirculates slowly through the conducting low-side one
+    fast = np.isclose(v, 24.0 + drive.freewheel.diode_drop, rtol=0, atol=1e-5)
+    slow = np.isclose(v, 24.0 + drive.switch.on_resistance * i, rtol=0, atol=1e-5)  # the CSV's 7 digits
+    bad = ~(fast | slow) & hold_off
+    assert not bad.any(), (v[bad][:5], i[bad][:5], t[bad][:5])
+    assert fast[hold_off].any() and slow[hold_off].any()
+    # the late periods sit on the model's orbit (duty of the 24 V table entry)
+    lp = loop(drive, 24.0, 20.0)
+    period = 1 / 20e3
+    k_on = np.flatnonzero(np.diff(on) > 0)
+    width = t[np.flatnonzero(np.diff(on) < 0)[-2]] - t[k_on[-2] + 1]
+    ss = pwm_steady_state(width / period, 20e3, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance,
+                          mixed=lp.mixed)
+    assert i[k_off] == pytest.approx(float(ss.i_max), rel=1e-3)
+
+
+def test_a_fraction_above_one_is_refused(tmp_path):
+    path = _variant(tmp_path, 1.5)
+    res = CliRunner().invoke(app, ["design", str(path)])
+    assert res.exit_code == 2 and "hold.fast_fraction" in res.stderr
+    assert len(res.stderr.strip().splitlines()) == 1
+
+
+def test_mixed_decay_needs_a_full_bridge_and_tune_refuses_it(tmp_path):
+    demo = tmp_path / "d.toml"
+    demo.write_text((EXAMPLES / "demo-valve.toml").read_text().replace(
+        "[hold]\n", "[hold]\nfast_fraction = 0.2\n", 1))
+    res = CliRunner().invoke(app, ["design", str(demo)])
+    assert res.exit_code == 2 and "hold.fast_fraction" in res.stderr and "full bridge" in res.stderr
+    res = CliRunner().invoke(app, ["tune", str(_variant(tmp_path, 0.2))])
+    assert res.exit_code == 2 and "hold.fast_fraction" in res.stderr
+    assert len(res.stderr.strip().splitlines()) == 1
