@@ -1528,6 +1528,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     why = None
     if coil.flux_current:
         key, why = "coil.flux_current", "a flux-linkage curve"
+    elif coil.eddy_resistance:
+        key = "coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance"
+        why = "an eddy-current term"
     elif switch.topology != "low_side":
         key, why = "switch.topology", f"a {switch.topology.replace('_', '-')} switch (only the low-side switch)"
     elif freewheel.type == "clamp":
