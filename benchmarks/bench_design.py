@@ -293,11 +293,39 @@ def bench_armature_curves_design(runs: int = 5) -> None:
                      runs, env)
 
 
+def bench_eddy_design(runs: int = 5) -> None:
+    """``coildrive design`` with an eddy-current term (``eddy_resistance = 300 ohm``) against
+    the same file without it, paired, for the saturating example (the orbit's Newton
+    solves) and a linear one (closed forms): median CPU and wall against the 2 s target."""
+    import tempfile
+
+    env = {**os.environ, "PYTHONPATH": str(ROOT)}
+    with tempfile.TemporaryDirectory() as tmp:
+        for name in ("saturating-valve-24v", "reagent-valve-zener-24v"):
+            src = ROOT / "examples" / f"{name}.toml"
+            text = src.read_text()
+            board = text.split('board = "')[1].split('"')[0]
+            text = text.replace(f'board = "{board}"', f'board = "{ROOT / "boards" / board}.toml"')
+            plain, eddy = Path(tmp) / f"{name}.toml", Path(tmp) / f"{name}-eddy.toml"
+            plain.write_text(text)
+            eddy.write_text(text.replace("inductance_tolerance = 0.15",
+                                         'inductance_tolerance = 0.15\neddy_resistance = "300 ohm"'))
+            cmds = {"plain": [sys.executable, "-m", "coildrive", "design", str(plain), "--json"],
+                    "eddy": [sys.executable, "-m", "coildrive", "design", str(eddy), "--json"]}
+            cpu, wall = _paired(cmds, runs, env)
+            for what, data in (("CPU", cpu), ("wall", wall)):
+                a, b = statistics.median(data["plain"]), statistics.median(data["eddy"])
+                print(f"design of {name} with an eddy term ({what}, median of {runs} paired): "
+                      f"{b:.3f} s (target < 2 s) vs without {a:.3f} s: ratio {b / a:.2f}")
+
+
 def main() -> None:
     os.environ.setdefault("OMP_NUM_THREADS", "1")
     if "flux" in sys.argv:
         bench_flux_design()
         return
+    if "eddy" in sys.argv:
+        bench_eddy_design()
     if "armflux" in sys.argv:
         bench_armature_curves_design()
         return

@@ -91,6 +91,8 @@ BOUNDS: dict[str, tuple[float, float, str]] = {
     "coil.release_time": (1e-6, 10.0, "time"),
     "coil.flux_current": (0.0, 1000.0, "current"),
     "coil.flux_linkage": (0.0, 1000.0, "flux_linkage"),
+    "coil.eddy_resistance": (1e-3, 1e9, "resistance"),
+    "coil.eddy_time_constant": (1e-9, 1.0, "time"),
     "coil.seated_current": (0.0, 1000.0, "current"),
     "coil.seated_linkage": (0.0, 1000.0, "flux_linkage"),
     "supply.min": (0.5, 1000.0, "voltage"),
@@ -99,6 +101,12 @@ BOUNDS: dict[str, tuple[float, float, str]] = {
     "supply.capacitance": (1e-9, 10.0, "capacitance"),
     "supply.capacitor_voltage": (1.0, 10e3, "voltage"),
     "supply.source_resistance": (100e-6, 100.0, "resistance"),
+    "supply.boost": (1.0, 1000.0, "voltage"),
+    "supply.boost_tolerance": (0.0, 0.5, "dimensionless"),
+    "supply.boost_capacitance": (1e-9, 10.0, "capacitance"),
+    "supply.boost_capacitance_tolerance": (0.0, 0.9, "dimensionless"),
+    "supply.boost_resistance": (0.0, 100.0, "resistance"),
+    "supply.boost_power": (1e-3, 100e3, "power"),
     "ambient.min": (-75.0, 200.0, "temperature"),
     "ambient.max": (-75.0, 200.0, "temperature"),
     "thermal.resistance": (0.0, 10e3, "thermal_resistance"),
@@ -176,6 +184,7 @@ _ZERO_MEANS_UNSET = frozenset((
     "hold.band", "hold.off_time", "hold.max_frequency", "timer.max_pwm_frequency",
     "switch.rise_time", "switch.fall_time", "switch.power_rating", "freewheel.zener_voltage",
     "supply.capacitance", "supply.capacitor_voltage", "supply.source_resistance",
+    "supply.boost", "supply.boost_capacitance", "supply.boost_power",
     "freewheel.resistance", "freewheel.clamp_voltage", "freewheel.diode_power_rating",
     "freewheel.zener_power_rating", "freewheel.resistor_power_rating",
     "freewheel.clamp_power_rating", "freewheel.bypass_power_rating",
@@ -225,6 +234,11 @@ class Coil:
     (the small-signal value, for reports) and the tolerance scales the whole curve.
     With ``[armature]`` that curve is the open one (armature blocked open) and
     ``seated_current`` (A) / ``seated_linkage`` (Wb) tabulate the seated coil's.
+
+    Eddy currents (docs/coil-model.md): ``eddy_resistance`` (ohm) across the magnetising
+    branch, given as such or as ``eddy_time_constant`` (s, ``L / R_e`` with ``inductance``,
+    the small-signal value); 0 = none. ``eddy_time_constant`` keeps the given time
+    constant (0 when the resistance was given), for reports and the input hash.
     """
 
     resistance: float
@@ -242,6 +256,8 @@ class Coil:
     release_time: float = 0.0
     flux_current: tuple[float, ...] = ()
     flux_linkage: tuple[float, ...] = ()
+    eddy_resistance: float = 0.0
+    eddy_time_constant: float = 0.0
     seated_current: tuple[float, ...] = ()
     seated_linkage: tuple[float, ...] = ()
 
@@ -265,6 +281,12 @@ class Supply:
     ``source_resistance`` (ohm, 0 = not given: a stiff bus) is the cable or battery
     resistance between the source at the supply voltage and the bulk ``capacitance``;
     with both the bus droops during the peak (:mod:`coildrive.model.supply`).
+
+    ``boost`` (V, 0 = none) is a second, higher voltage the peak runs from until a current
+    threshold (:mod:`coildrive.model.boost`), within ``boost_tolerance`` (fraction); from a
+    capacitor of ``boost_capacitance`` (F, 0 = an ideal source) within
+    ``boost_capacitance_tolerance`` (fraction), through ``boost_resistance`` (ohm: the boost
+    switch and the capacitor's ESR), recharged at ``boost_power`` (W, 0 = not given).
     """
 
     min: float
@@ -274,6 +296,17 @@ class Supply:
     capacitance: float = 0.0
     capacitor_voltage: float = 0.0
     source_resistance: float = 0.0
+    boost: float = 0.0
+    boost_tolerance: float = 0.0
+    boost_capacitance: float = 0.0
+    boost_capacitance_tolerance: float = 0.0
+    boost_resistance: float = 0.0
+    boost_power: float = 0.0
+
+    @property
+    def boosted(self) -> bool:
+        """True when the peak runs from a boost voltage (``supply.boost`` given)."""
+        return self.boost > 0
 
     @property
     def droops(self) -> bool:
@@ -667,12 +700,15 @@ class Drive:
 #: default, so that files which do not use them keep their hash (and headers their bytes).
 _LATER_FIELDS = (
     (("coil",), Coil, _DATASHEET_KEYS + ("stated_temp", "flux_current", "flux_linkage",
-                                         "seated_current", "seated_linkage")),
+                                         "seated_current", "seated_linkage",
+                                         "eddy_resistance", "eddy_time_constant")),
     (("armature",), Armature, ("open_current", "open_linkage", "seated_current", "seated_linkage")),
     (("hold",), Hold, _CURRENT_MODE_KEYS + ("regulation", "fast_fraction")),
     (("thermal",), Thermal, ("capacity",)),
     (("pull_in",), PullIn, ("current_margin", "settle_time", "compensate")),
-    (("supply",), Supply, ("sink", "capacitance", "capacitor_voltage", "source_resistance")),
+    (("supply",), Supply, ("sink", "capacitance", "capacitor_voltage", "source_resistance", "boost",
+                           "boost_tolerance", "boost_capacitance", "boost_capacitance_tolerance",
+                           "boost_resistance", "boost_power")),
     (("board", "sense"), Sense, ("resistance_tolerance", "gain_tolerance")),
     (("board", "supply_sense"), SupplySense, ("divider_tolerance",)),
     (("switch",), Switch, ("rise_time", "fall_time", "power_rating", "power_derating", "topology")),
@@ -1069,6 +1105,13 @@ def _read_coil(s: _Section, armature: Armature | None) -> tuple[Coil, dict[str, 
                              f"outside {bounds_text(section + '.current')}")
             sheet[section] = value
     table = _read_flux_curve(s, armature)
+    eddy = [k for k in ("eddy_resistance", "eddy_time_constant") if k in s.table]
+    if len(eddy) == 2:
+        raise _both(s, "eddy_resistance", "eddy_time_constant", "the eddy-current term "
+                    "(eddy_time_constant = inductance / eddy_resistance)")
+    if eddy and armature is not None:
+        raise s.fail(eddy[0], "an eddy-current term with [armature] is not supported yet: leave "
+                     "it out, or leave out [armature]")
     seated = _read_seated_curve(s, armature, table)
     coil = Coil(
         resistance=resistance,
@@ -1085,6 +1128,13 @@ def _read_coil(s: _Section, armature: Armature | None) -> tuple[Coil, dict[str, 
         flux_current=table[0] if table else (), flux_linkage=table[1] if table else (),
         seated_current=seated[0] if seated else (), seated_linkage=seated[1] if seated else (),
     )
+    if eddy:
+        tau = optional("eddy_time_constant", "time")
+        r_e = coil.inductance / tau if tau else optional("eddy_resistance", "resistance")
+        if not _in_bounds(r_e, "coil.eddy_resistance"):
+            raise s.fail(eddy[0], f"gives an eddy resistance of {r_e:g} ohm (inductance / "
+                         f"eddy_time_constant), outside {bounds_text('coil.eddy_resistance')}")
+        coil = dataclasses.replace(coil, eddy_resistance=r_e, eddy_time_constant=tau)
     s.finish()
     return coil, sheet
 
@@ -1195,6 +1245,33 @@ def _flux_curve_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel
     if hold.mode == "current":
         raise InputError(source, "hold.mode", "\"current\" with a flux-linkage curve "
                          "(coil.flux_current) is not supported yet: use mode = \"voltage\"")
+
+
+def _eddy_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel, switch: Switch,
+                 thermal: Thermal, duty: "Duty | None", supply: Supply) -> None:
+    """What an eddy-current term does not yet work with: one line naming the key."""
+    if not coil.eddy_resistance:
+        return
+    what = "an eddy-current term (coil.eddy_resistance / eddy_time_constant)"
+    if hold.regulation == "closed_loop":
+        raise InputError(source, "hold.regulation", f"\"closed_loop\" with {what} is not "
+                         "supported yet: use \"fixed\" or \"supply_table\"")
+    if hold.mode == "current":
+        raise InputError(source, "hold.mode", f"\"current\" with {what} is not supported yet: "
+                         "use mode = \"voltage\"")
+    if switch.topology == "full_bridge":
+        raise InputError(source, "switch.topology", f"\"full_bridge\" with {what} is not "
+                         "supported yet")
+    if freewheel.split_decay:
+        raise InputError(source, "freewheel.split_decay", f"split decay with {what} is not "
+                         "supported yet")
+    if duty is not None or thermal.capacity > 0:
+        raise InputError(source, "duty" if duty is not None else "thermal.capacity",
+                         f"an on/off cycle's coil temperature with {what} is not supported yet: "
+                         "leave [duty] and thermal.capacity / time_constant out")
+    if supply.droops:
+        raise InputError(source, "supply.source_resistance", f"a drooping bus with {what} is "
+                         "not supported yet: leave source_resistance out")
 
 
 def _mechanics_currents(arm: Armature, coil: Coil) -> dict[str, float]:
@@ -1374,6 +1451,20 @@ def resolve_board(spec: str, relative_to: Path | None = None) -> Path:
                      "and no such file")
 
 
+def _open_loop_refusal(hold: Hold, armature: Armature | None) -> tuple[str, str] | None:
+    """``(key, what)`` when the hold is not a voltage-mode open-loop one on a still armature
+    (what the drooping bus and the boosted peak are modelled with), else ``None``."""
+    if hold.mode == "current":
+        return "hold.mode", "a current-mode hold"
+    if hold.mode == "latch":
+        return "hold.mode", "a latching coil"
+    if hold.regulation == "closed_loop":
+        return "hold.regulation", "a closed-loop hold"
+    if armature is not None:
+        return "armature", "a moving armature"
+    return None
+
+
 def _check_droop(source: str, fw_origins: dict, coil: Coil, switch: Switch, freewheel: Freewheel,
                  supply: Supply, hold: Hold, armature: Armature | None) -> None:
     """What the drooping bus (``supply.source_resistance``) is modelled with: a linear coil,
@@ -1400,6 +1491,70 @@ def _check_droop(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
                          f"{why}: expected source_resistance left out, or a linear coil, one switch, "
                          "a diode/zener/resistor freewheel, a voltage-mode open-loop hold and no [armature]")
+
+
+def _read_boost(s: "_Section") -> tuple:
+    """The ``[supply]`` boost keys, in :class:`Supply`'s order (all 0 without ``boost``)."""
+    boost = s.quantity("boost", "voltage", 0.0, nonnegative=True)
+    keys = ("boost_tolerance", "boost_capacitance", "boost_capacitance_tolerance", "boost_resistance",
+            "boost_power")
+    if not boost > 0:
+        for key in keys:
+            if key in s.table:
+                raise s.fail(key, "given without supply.boost, expected the boost voltage too")
+        return (0.0,) * 6
+    cap = s.quantity("boost_capacitance", "capacitance", 0.0, nonnegative=True)
+    power = s.quantity("boost_power", "power", 0.0, nonnegative=True)
+    if cap > 0 and not power > 0:
+        raise s.fail("boost_power", "missing: a boost capacitor is recharged between actuations, "
+                     "expected the charging power (e.g. \"10 W\")")
+    return (boost, s.fraction("boost_tolerance", 0.0), cap,
+            s.fraction("boost_capacitance_tolerance", 0.0),
+            s.quantity("boost_resistance", "resistance", 0.0, nonnegative=True), power)
+
+
+def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, freewheel: Freewheel,
+                 supply: Supply, hold: Hold, pull_in: PullIn, armature: Armature | None,
+                 duty) -> None:
+    """What the boosted peak (``supply.boost``) is modelled with: a linear coil, a low-side
+    switch, a diode/zener/resistor freewheel, a stiff main supply, a voltage-mode open-loop
+    hold, a peak that ends at its threshold, no moving armature. Anything else is refused
+    in one line."""
+    if not supply.boosted:
+        return
+    if supply.boost * (1.0 - supply.boost_tolerance) <= supply.max:
+        raise InputError(source, "supply.boost", f"{supply.boost:g} V less its tolerance is not above "
+                         f"supply.max ({supply.max:g} V), expected a higher voltage than the main supply")
+    why = None
+    if coil.flux_current:
+        key, why = "coil.flux_current", "a flux-linkage curve"
+    elif coil.eddy_resistance:
+        key = "coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance"
+        why = "an eddy-current term"
+    elif switch.topology != "low_side":
+        key, why = "switch.topology", f"a {switch.topology.replace('_', '-')} switch (only the low-side switch)"
+    elif freewheel.type == "clamp":
+        key, why = "freewheel.type", "a clamp across the switch"
+        source = fw_origins.get("type", source)
+    elif freewheel.split_decay:
+        key, why = "freewheel.split_decay", "split decay"
+        source = fw_origins.get("split_decay", source)
+    elif supply.droops:
+        key, why = "supply.source_resistance", "a drooping main supply"
+    elif _open_loop_refusal(hold, armature):
+        key, why = _open_loop_refusal(hold, armature)
+    elif pull_in.compensate:
+        key, why = "pull_in.compensate", "a supply-compensated peak (the boosted peak ends at its threshold)"
+    elif pull_in.settle_time > 0:
+        key, why = "pull_in.settle_time", "a settle time (the boosted peak ends at its threshold)"
+    elif duty is not None:
+        key, why = "duty", "an on/off cycle"
+    if why is not None:
+        raise InputError(source, key, f"the boosted peak (supply.boost) is not modelled with {why}: "
+                         "expected boost left out, or a linear coil, a low-side switch, a "
+                         "diode/zener/resistor freewheel without split decay, a stiff main supply, a "
+                         "voltage-mode open-loop hold, a peak without compensate or settle_time, no "
+                         "[armature] and no [duty]")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,
@@ -1486,7 +1641,8 @@ def load_drive(path: str | Path, board: str | Path | None = None) -> Drive:
                     s.boolean("sink", True),
                     s.quantity("capacitance", "capacitance", 0.0, nonnegative=True),
                     s.quantity("capacitor_voltage", "voltage", 0.0, nonnegative=True),
-                    s.quantity("source_resistance", "resistance", 0.0, nonnegative=True))
+                    s.quantity("source_resistance", "resistance", 0.0, nonnegative=True),
+                    *_read_boost(s))
     if supply.droops and not supply.capacitance > 0:
         raise s.fail("capacitance", "missing: with source_resistance the bus droops onto the bulk "
                      "capacitor at the board, expected its value (e.g. \"470 uF\")")
@@ -1682,7 +1838,9 @@ def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_
     merged, origins = _merged(brd.source, fw_board, source, fw_drive)
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
     _check_bridge(source, origins, switch, freewheel, supply, hold, armature)
+    _eddy_limits(source, coil, hold, freewheel, switch, thermal, duty, supply)
     _check_droop(source, origins, coil, switch, freewheel, supply, hold, armature)
+    _check_boost(source, origins, coil, switch, freewheel, supply, hold, pull_in, armature, duty)
     _flux_curve_limits(source, coil, hold, freewheel, switch, thermal, duty)
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:
         raise InputError(origins.get("clamp_voltage", source), "freewheel.clamp_voltage",

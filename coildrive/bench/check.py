@@ -250,6 +250,9 @@ def predict(design, point: OperatingPoint, hold_time: float) -> tuple[dict, obje
 
     drive = design.drive
     cold = dataclasses.replace(drive, thermal=dataclasses.replace(drive.thermal, resistance=0.0))
+    if drive.supply.boosted:   # nominal parts: the boost at its nominal too
+        cold = dataclasses.replace(cold, supply=dataclasses.replace(
+            drive.supply, boost_tolerance=0.0, boost_capacitance_tolerance=0.0))
     from ..design import firmware_setting
 
     duty, peak = firmware_setting(design, point.supply_v, point.coil_temp_c)
@@ -271,11 +274,13 @@ def predict(design, point: OperatingPoint, hold_time: float) -> tuple[dict, obje
         "dropout_current_a": drive.release.current,
         "seated_time_s": None,
     }
-    if drive.armature is not None:
-        # the armature model's times mean other moments (at rest on a stop): the times to a
-        # current are read off the model waveform instead, the seat from the dip
+    if drive.armature is not None or drive.coil.eddy_resistance:
+        # the armature model's times mean other moments (at rest on a stop), an eddy term's
+        # are the flux's (the magnetising current): the times the sensed current takes to
+        # a current are read off the model waveform instead (its terminal current)
         pred["pull_in_time_s"] = _waveform_crossing(w, drive.pull_in.current, 0.0, True)
         pred["release_time_s"] = _waveform_crossing(w, drive.release.current, w.events["off"], False)
+    if drive.armature is not None:   # the seat from the dip
         pin = getattr(getattr(res, "armature", None), "pull_in", None)
         dip = getattr(pin, "dip_time", None)
         seat = np.asarray(dip if dip is not None else res.pull_in_time, float).ravel()
@@ -465,16 +470,22 @@ def check_capture(capture: Capture, design, tolerances: Tolerances | None = None
                                 "after the peak)" if from_waveform else "", numbers=numbers))
         sense_switch = a.sense_position == "switch"
         switch_dcm = sense_switch and all(x.hold_discontinuous for x in acts)
+        # an eddy term steps the terminal current at every switch edge: under the switch
+        # the off-time's current (and so the mean and the ripple) cannot be read back
+        switch_eddy = sense_switch and bool(drive.coil.eddy_resistance)
+        eddy_na = ("sense under the switch with an eddy term: the current steps at each switch "
+                   "edge and the off-time is not seen")
         items.append(_row("hold_mean", "A", [x.hold_mean_a for x in acts], pred["hold_mean_a"],
                           tol.hold_mean, 2.0 * apc,
-                          na_reason="sense under the switch in discontinuous conduction: the coil "
-                                    "current cannot be seen while the switch is off" if switch_dcm else None,
+                          na_reason=eddy_na if switch_eddy else
+                          "sense under the switch in discontinuous conduction: the coil "
+                          "current cannot be seen while the switch is off" if switch_dcm else None,
                           numbers=numbers))
         spp = fs / f_hold
         resolved = spp >= 10.0
         items.append(_row("hold_ripple", "A", [x.hold_ripple_a for x in acts], pred["hold_ripple_a"],
                           tol.hold_ripple, 2.0 * apc,
-                          na_reason=None if resolved else
+                          na_reason=eddy_na if switch_eddy else None if resolved else
                           f"{spp:.3g} samples per PWM period (< 10): the sample rate cannot resolve the ripple",
                           numbers=numbers))
         items.append(_row("release_time", "s", [x.release_time_s for x in acts], pred["release_time_s"],

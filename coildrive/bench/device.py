@@ -36,7 +36,7 @@ from ..config import Drive
 from ..design.timer import MIN_PERIOD_TICKS, solve_timer
 from .messages import Command, Event, EventKind, Info, Message, Opcode, Reply, ReplyStatus, Samples
 from .protocol import MAX_SAMPLES_PER_FRAME, FrameDecoder, FrameEncoder
-from .synth import (FAULTS, actuation_events, actuation_waveform, adc_scaling, current_codes,
+from .synth import (FAULTS, actuation_events, actuation_waveform, adc_scaling, current_codes, faulty_drive,
                     first_sample_at_or_after, operating_point, sense_current)
 
 #: Longest peak phase the device accepts, s (a coil at full current overheats; our limit).
@@ -310,7 +310,16 @@ class VirtualDevice(LineOutput):
         from ..design import firmware_setting  # the compare and peak its firmware runs at this supply
 
         duty, peak = firmware_setting(design, self.supply, self.coil_temp)
-        self.settings = Settings(round(peak * self.tick_rate), design.timer.prescaler,
+        ticks = round(peak * self.tick_rate)
+        #: a boosted peak ends at its threshold, for this coil (s): the ticks are its time-out
+        self._boost_peak = None
+        if design.boost is not None:
+            _, r_f, l_f = faulty_drive(drive, options.fault)
+            self._boost_peak = firmware_setting(design, self.supply, self.coil_temp,
+                                                options.resistance_scale * r_f,
+                                                options.inductance_scale * l_f)[1]
+            ticks = design.pull_in.peak_ticks
+        self.settings = Settings(ticks, design.timer.prescaler,
                                  design.timer.period_ticks, round(duty * design.timer.period_ticks))
         rate = Fraction(self.sample_rate).limit_denominator(2**32 - 1)
         _, apc = adc_scaling(drive)
@@ -351,8 +360,10 @@ class VirtualDevice(LineOutput):
     # ------------------------------------------------------------------ settings
     @property
     def peak_time(self) -> float:
-        """Peak phase in force, s (whole scheduler ticks)."""
-        return self.settings.peak_ticks / self.tick_rate
+        """Peak phase in force, s (whole scheduler ticks; a boosted peak ends at its
+        threshold, or at those ticks, its time-out, if sooner)."""
+        t = self.settings.peak_ticks / self.tick_rate
+        return t if self._boost_peak is None else min(t, self._boost_peak)
 
     @property
     def frequency(self) -> float:

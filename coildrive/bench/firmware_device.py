@@ -40,7 +40,9 @@ from pathlib import Path
 
 import numpy as np
 
+from ..model import eddy
 from ..model.circuit import loop
+from ..model.eddy import EddyCoil
 from ..model.rl import decay_current, rise_current
 from .messages import Opcode, Reply, ReplyStatus
 from .device import BITS_PER_BYTE, DeviceOptions, DeviceStats, LineOutput, LogEntry
@@ -351,6 +353,17 @@ class FirmwareDevice(LineOutput):
             on = self._loops["hold"]
             return rise_current(np.asarray(x, float) - t0, i0, on.v_on, on.r_on, on.inductance)
 
+        def terminal_current(x, i_m):
+            """What the sense resistor carries: the coil's current, or with an eddy
+            resistance the terminal current of the magnetising current ``i_m``."""
+            e = self._loops["hold"].inductance
+            if not isinstance(e, EddyCoil):
+                return i_m
+            lp = self._loops["hold" if bypass else "release"]
+            on = self._loops["hold"]
+            return np.where(np.asarray(x) <= on_end, eddy.terminal(i_m, on.v_on, on.r_on, e.resistance),
+                            np.maximum(eddy.terminal(i_m, -lp.v_off, lp.r_off, e.resistance), 0.0))
+
         #: a full bridge's slow decay that the driver ends at the conversion (all four open):
         #: the time it does, s, from which the current decays fast
         cut: list[float] = []
@@ -370,7 +383,7 @@ class FirmwareDevice(LineOutput):
             return np.zeros_like(i) if self.options.fault == "open" else i
 
         def sensed(x):
-            i = current(x)
+            i = terminal_current(x, current(x))
             return np.where(np.asarray(x) < on_end, i, 0.0) if self.sense_in_switch else i
 
         # conversion point: middle of the on-time under the switch, middle of the period in the coil path

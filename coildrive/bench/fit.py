@@ -15,6 +15,15 @@ before the dip: the motional back-EMF bends the rise well before the top, so the
 stops early. Codes are read mid-step (``code + 0.5``, a truncating ADC) and samples at
 zero or at full scale are left out (there the mid-step reading is biased).
 
+Eddy currents (a resistance ``R_e`` across the magnetising branch,
+:mod:`coildrive.model.eddy`) make the rise start with a step: the terminal current is
+``V/R_loop (1 - (1 - s) exp(-(t - t0) / tau'))`` with the step share ``s = R_loop /
+(R_loop + R_e)`` and ``tau' = L / (R_loop (1 - s))``. Each actuation is also fitted with
+that four-parameter form; where its step stands clear of the ADC's resolution
+(:data:`EDDY_MIN_CODES` codes and :data:`EDDY_MIN_SHARE` of ``V / R_loop``) and it
+halves the residual of the plain fit, the coil has an eddy term
+(``R_e = R_loop (1 - s) / s``) and that fit is kept; otherwise the plain one.
+
 Actuations the capture cut short (``partial``) are not fitted. Also reported: the seat
 time (bottom of the current dip) and the drop-out current seen in the release bump (the
 current when the opening armature turned the decay around; the armature let go slightly
@@ -41,6 +50,10 @@ from .capture_file import Capture
 MOTION_FRACTION = 0.5
 #: Fewest samples in a fit window.
 MIN_FIT_SAMPLES = 12
+#: A switch-on step smaller than this many ADC codes, or this share of the settled
+#: current, is not taken for an eddy term (as in coildrive.bench.flux_fit).
+EDDY_MIN_CODES = 6
+EDDY_MIN_SHARE = 0.002
 
 
 @dataclass(frozen=True)
@@ -54,6 +67,7 @@ class RiseFit:
     t0_s: float
     rms_residual_a: float
     samples: int
+    eddy_resistance_ohm: float | None = None
 
 
 @dataclass(frozen=True)
@@ -83,11 +97,15 @@ class CoilFit:
     dropout_current_a: float | None
     fits: tuple[RiseFit, ...]
     notes: tuple[str, ...] = ()
+    eddy_resistance_ohm: float | None = None
+    eddy_spread: float | None = None
 
     def to_dict(self) -> dict:
         out = asdict(self)
-        out["fits"] = [asdict(f) for f in self.fits]
+        out["fits"] = [_without_none_eddy(asdict(f)) for f in self.fits]
         out["notes"] = list(self.notes)
+        if self.eddy_resistance_ohm is None:   # no eddy term seen: the document as before
+            del out["eddy_resistance_ohm"], out["eddy_spread"]
         out["coil_section"] = self.coil_section()
         return out
 
@@ -105,14 +123,52 @@ class CoilFit:
             f'reference_temp = "{self.coil_temp_c:.4g} degC"    # {temp_note}',
             f'inductance = "{format_si(self.inductance_h, "H", 4)}"    # fitted from '
             f"{what}, spread +/-{self.inductance_spread:.1%}",
-            "# resistance_tolerance, inductance_tolerance: keep your part's figures",
         ]
+        if self.eddy_resistance_ohm is not None:
+            lines.append(f'eddy_resistance = "{format_si(self.eddy_resistance_ohm, "ohm", 4)}"    # fitted '
+                         f"from the switch-on step, spread +/-{self.eddy_spread:.1%}")
+        lines.append("# resistance_tolerance, inductance_tolerance: keep your part's figures")
         if self.seated_time_s is not None:
             lines.append(f"# seen: the armature seats {self.seated_time_s * 1e3:.4g} ms after switch-on "
                          f"(current dip, top {self.dip_top_current_a:.4g} A)")
         if self.dropout_current_a is not None:
             lines.append(f"# seen: drop-out near {self.dropout_current_a:.4g} A (release bump)")
         return "\n".join(lines) + "\n"
+
+
+def _without_none_eddy(d: dict) -> dict:
+    if d.get("eddy_resistance_ohm", 0) is None:
+        del d["eddy_resistance_ohm"]
+    return d
+
+
+def _fit_eddy(t: np.ndarray, y: np.ndarray, v: float, t_on: float, fs: float, plain: np.ndarray,
+              plain_rms: float, amps_per_code: float) -> tuple[np.ndarray, float] | None:
+    """The four-parameter fit with a switch-on step (see the module docstring), started
+    from the plain fit ``plain`` (R_loop, L, t0): ``((R_loop, L, t0, R_e), rms)``, or
+    ``None`` when the capture shows no step."""
+    from scipy.optimize import least_squares
+
+    r0, l0, _ = plain
+    span = 2.0 / fs
+    s0 = float(np.clip(y[0] * r0 / v, 0.01, 0.9))
+
+    def model(x):
+        r, ind, t0, share = x[0] * r0, x[1] * l0, t_on + x[2] * span, x[3]
+        dt = t - t0
+        tau = ind / (r * (1.0 - share))
+        return np.where(dt >= 0, v / r * (1.0 - (1.0 - share) * np.exp(-np.maximum(dt, 0.0) / tau)), 0.0)
+
+    sol = least_squares(lambda x: model(x) - y, x0=[1.0, 1.0, 0.0, s0],
+                        bounds=([1e-4, 1e-3, -1.0, 0.0], [1e4, 1e3, 1.0, 0.95]), method="trf",
+                        xtol=1e-12, ftol=1e-12, gtol=1e-12)
+    x = sol.x
+    rms = float(np.sqrt(np.mean(sol.fun**2)))
+    r = x[0] * r0
+    step = v / r * x[3]
+    if not (step > max(EDDY_MIN_CODES * amps_per_code, EDDY_MIN_SHARE * v / r) and rms < 0.5 * plain_rms):
+        return None
+    return np.array([r, x[1] * l0, t_on + x[2] * span, r * (1.0 - x[3]) / x[3]]), rms
 
 
 def _fit_one(t: np.ndarray, y: np.ndarray, v: float, t_on: float, fs: float) -> tuple[np.ndarray, float]:
@@ -208,7 +264,15 @@ def fit_capture(capture: Capture, board: Board, supply: float, coil_temp: float 
             continue
         t = idx[a:b][keep] / fs
         y = (code[keep] + 0.5) * apc
-        (r_loop, ind, t0), rms = _fit_one(t, y, supply, act.on_at_s, fs)
+        plain, rms = _fit_one(t, y, supply, act.on_at_s, fs)
+        stepped = (None if act.seated_time_s is not None else   # a moving armature: the plain fit
+                   _fit_eddy(t, y, supply, act.on_at_s, fs, plain, rms, apc))
+        if stepped is not None:
+            (r_loop, ind, t0, r_e), rms = stepped
+            fits.append(RiseFit(act.number, float(r_loop), float(ind), float(t0), rms, int(t.size),
+                                float(r_e)))
+            continue
+        r_loop, ind, t0 = plain
         fits.append(RiseFit(act.number, float(r_loop), float(ind), float(t0), rms, int(t.size)))
     if not fits:
         raise InputError(capture.source, "", "no actuation with a usable rise to fit"
@@ -234,7 +298,14 @@ def fit_capture(capture: Capture, board: Board, supply: float, coil_temp: float 
     def spread(x):
         return float((x.max() - x.min()) / 2.0 / np.median(x)) if x.size > 1 else 0.0
 
-    return CoilFit(resistance_ohm=r_coil, loop_resistance_ohm=r_loop, inductance_h=ind,
+    eddies = np.array([f.eddy_resistance_ohm for f in fits if f.eddy_resistance_ohm is not None])
+    r_e = e_spread = None
+    if eddies.size:
+        if eddies.size < len(fits):
+            notes.append(f"a switch-on step (eddy currents) in {eddies.size} of {len(fits)} "
+                         "actuation(s): the eddy resistance is their median")
+        r_e, e_spread = float(np.median(eddies)), spread(eddies)
+    return CoilFit(eddy_resistance_ohm=r_e, eddy_spread=e_spread, resistance_ohm=r_coil, loop_resistance_ohm=r_loop, inductance_h=ind,
                    resistance_spread=spread(r_loops - r_sw - r_sense), inductance_spread=spread(inds),
                    supply_v=float(supply), coil_temp_c=temp, coil_temp_known=known,
                    switch_resistance_ohm=r_sw, sense_resistance_ohm=r_sense, armature_moves=moves,

@@ -19,6 +19,20 @@ rise (block it open for the open curve; capture a seated coil for the seated one
 The residual is the RMS distance of the samples' flux from the table's interpolant
 (PCHIP, as the design uses it), relative to the largest flux; the current range the
 table covers is reported, and above it the design extends the curve straight.
+
+Eddy currents (a resistance ``R_e`` across the magnetising branch, see
+:mod:`coildrive.model.eddy`) show as a step at the switch-on: at zero flux the
+magnetising current is zero, so the terminal current starts at ``V / (R_loop + R_e)``.
+``psi = int (V - R_loop i) dt`` still holds (it is the branch voltage), but the curve is
+the flux against the magnetising current ``i_m = i - (V - R_loop i) / R_e``. Near zero
+flux ``i_m = psi / L_0``, so the terminal current is a straight line in the flux,
+``i = (V + R_e psi / L_0) / (R_loop + R_e)``; its intercept at zero flux is the step. The
+fit reads it off the start of each rise (a quadratic in ``psi`` over the samples below
+:data:`EDDY_SPAN` of the largest flux: the curve's bend does not pull the intercept),
+takes the median over the actuations, and when it stands clear of the ADC's resolution
+(:data:`EDDY_MIN_CODES` codes and :data:`EDDY_MIN_SHARE` of the settled current) gives
+``R_e = V / step - R_loop`` and tabulates the flux against ``i_m``. Its residual is the
+RMS distance of those samples from the quadratic, relative to the step.
 """
 
 from __future__ import annotations
@@ -44,6 +58,13 @@ SETTLED_TAIL = 0.1
 SETTLED_SPREAD = 0.005
 #: Most measured points kept per rise for the plot.
 PLOT_SAMPLES = 400
+#: The start of the rise the switch-on step is read off: samples below this share of
+#: the rise's largest flux.
+EDDY_SPAN = 0.2
+#: A step smaller than this many ADC codes, or this share of the settled current, is
+#: not an eddy-current term (the fit then has none).
+EDDY_MIN_CODES = 6
+EDDY_MIN_SHARE = 0.002
 
 
 @dataclass(frozen=True)
@@ -65,9 +86,15 @@ class FluxFit:
     actuations: int
     notes: tuple[str, ...] = ()
     samples: tuple[tuple[np.ndarray, np.ndarray], ...] = field(default=(), repr=False, compare=False)
+    eddy_resistance_ohm: float | None = None
+    eddy_step_a: float | None = None
+    eddy_residual: float | None = None
 
     def to_dict(self) -> dict:
         out = fit_dict(self)
+        for key in ("eddy_resistance_ohm", "eddy_step_a", "eddy_residual"):
+            if out[key] is None:   # no eddy term seen: the document as before
+                del out[key]
         out["coil_section"] = self.coil_section()
         return out
 
@@ -83,6 +110,9 @@ class FluxFit:
             "(above it the design extends the curve straight)",
             f"flux_current = [{cur}]",
             f"flux_linkage = [{flux}]",
+            *([f'eddy_resistance = "{self.eddy_resistance_ohm:.5g} ohm"    # from the switch-on '
+               f"step {self.eddy_step_a:.4g} A, residual {self.eddy_residual:.2%}; the curve is "
+               "against the magnetising current"] if self.eddy_resistance_ohm is not None else []),
             "# resistance_tolerance, inductance_tolerance: keep your part's figures",
         ]) + "\n"
 
@@ -130,17 +160,23 @@ def fit_flux(capture: Capture, board: Board, supply: float, coil_temp: float | N
                 continue
         else:
             r_loop = resistance + r_extra
-        psi = np.concatenate([[0.0], np.cumsum(0.5 * (2 * supply - r_loop * (i[1:] + i[:-1])) * np.diff(t))])
-        rises.append((i, psi, r_loop, settled))
+        psi = _flux(t, i, supply, r_loop)
+        rises.append((i, psi, r_loop, settled, t))
     if not rises:
         raise InputError(capture.source, "", "no actuation with a usable rise for a flux-linkage "
                          "curve" + (f" ({'; '.join(notes)})" if notes else ""))
-    top = TOP_FRACTION * min(min(s, supply / r) for _, _, r, s in rises)
-    table_i, table_psi, residual = median_table([(i, psi) for i, psi, _, _ in rises], top, points)
+    r_e, step, eddy_residual = _eddy_step(rises, supply, apc)
+    if r_e is not None:   # the curve against the magnetising current; the rise starts at the step
+        for k, (i, psi, r, settled, t) in enumerate(rises):
+            i = np.concatenate([[step], i[1:]])
+            psi = _flux(t, i, supply, r)
+            rises[k] = (i - (supply - r * i) / r_e, psi, r, settled, t)
+    top = TOP_FRACTION * min(min(s, supply / r) for _, _, r, s, _ in rises)
+    table_i, table_psi, residual = median_table([(i, psi) for i, psi, _, _, _ in rises], top, points)
     if not np.all(np.diff(table_psi) > 0):
         raise InputError(capture.source, "", "the flux linkage read off the rise does not rise with "
                          "the current (noise, an eddy-current hump or a moving armature): not a curve")
-    r_loop = float(np.median([r for _, _, r, _ in rises]))
+    r_loop = float(np.median([r for _, _, r, _, _ in rises]))
     r_coil = r_loop - r_extra
     if r_coil <= 0:
         raise InputError(capture.source, "", f"the loop resistance {r_loop:.4g} ohm is below the board's "
@@ -151,7 +187,35 @@ def fit_flux(capture: Capture, board: Board, supply: float, coil_temp: float | N
            f"from the settled current: {supply:.4g} V / loop, less switch + sense {r_extra:.3g} ohm")
     return FluxFit(tuple(float(x) for x in table_i), tuple(float(x) for x in table_psi), r_coil, r_loop,
                    how, float(supply), temp, residual, len(rises), tuple(notes),
-                   tuple(thin_samples(i, psi) for i, psi, _, _ in rises))
+                   tuple(thin_samples(i, psi) for i, psi, _, _, _ in rises),
+                   eddy_resistance_ohm=r_e, eddy_step_a=step, eddy_residual=eddy_residual)
+
+
+def _flux(t, i, supply: float, r_loop: float) -> np.ndarray:
+    """``psi = int (V - R_loop i) dt`` from the first sample (the trapezoid rule), Wb."""
+    return np.concatenate([[0.0], np.cumsum(0.5 * (2 * supply - r_loop * (i[1:] + i[:-1])) * np.diff(t))])
+
+
+def _eddy_step(rises, supply: float, amps_per_code: float):
+    """``(R_e ohm, step A, residual)`` of the switch-on step read off the start of each
+    rise (see the module docstring), or ``(None, None, None)`` when there is no step."""
+    steps, resid = [], []
+    for i, psi, r_loop, settled, _ in rises:
+        sel = np.flatnonzero(psi[1:] <= EDDY_SPAN * psi[-1]) + 1   # the samples, not the on moment
+        if sel.size < 6:
+            return None, None, None
+        c = np.polyfit(psi[sel], i[sel], 2)
+        steps.append((float(c[2]), r_loop, settled))
+        resid.append(float(np.sqrt(np.mean((np.polyval(c, psi[sel]) - i[sel]) ** 2))))
+    step = float(np.median([s for s, _, _ in steps]))
+    settled = min(s for _, _, s in steps)
+    if not step > max(EDDY_MIN_CODES * amps_per_code, EDDY_MIN_SHARE * settled):
+        return None, None, None
+    r_loop = float(np.median([r for _, r, _ in steps]))
+    r_e = supply / step - r_loop
+    if not r_e > 0:
+        return None, None, None
+    return r_e, step, float(np.median(resid)) / step
 
 
 def median_table(pairs, top: float, points: int) -> tuple[np.ndarray, np.ndarray, float]:
@@ -214,4 +278,6 @@ def flux_text(fit: FluxFit) -> str:
     """One status line: what was fitted."""
     return (f"flux-linkage curve from {fit.actuations} actuation(s) at {fit.supply_v:.4g} V: "
             f"0..{fit.current_a[-1]:.4g} A, up to {format_si(fit.flux_wb[-1], 'Wb')}, "
-            f"residual {fit.residual:.2%}; loop {fit.loop_resistance_ohm:.4g} ohm")
+            f"residual {fit.residual:.2%}; loop {fit.loop_resistance_ohm:.4g} ohm"
+            + (f"; eddy resistance {fit.eddy_resistance_ohm:.4g} ohm (switch-on step "
+               f"{fit.eddy_step_a:.4g} A)" if fit.eddy_resistance_ohm is not None else ""))

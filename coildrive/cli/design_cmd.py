@@ -186,7 +186,7 @@ def simulate_command(
                   label=f"{v:g} V, coil {t:g} degC, R x{r_factor:g}, L x{l_factor:g}")
     write_atomic(csv, w.to_csv())
     from ..design import firmware_setting
-    duty, peak = firmware_setting(d, v, t)
+    duty, peak = firmware_setting(d, v, t, r_factor, l_factor)
     status(f"wrote {csv}: {len(w.time)} samples, peak {peak * 1e3:.4g} ms, "
            f"hold duty {duty:.4f} ({d.hold.regulation}) at {d.hold.frequency_hz:.6g} Hz, off at "
            f"{w.events['off'] * 1e3:.4g} ms, zero at {w.events['zero'] * 1e3:.4g} ms")
@@ -209,7 +209,9 @@ def simulate_command(
     if plot is not None:
         from ..design.plot import plot_actuation
         write_atomic(plot, plot_actuation(d, w, f"{d.drive.name} on {d.drive.board.name}: simulated at "
-                                          f"{v:g} V, coil {t:g} degC\npeak {d.pull_in.peak_time_s * 1e3:.3g} ms, "
+                                          f"{v:g} V, coil {t:g} degC\npeak "
+                                          f"{(peak if d.boost is not None else d.pull_in.peak_time_s) * 1e3:.3g} ms"
+                                          f"{' (boost, to its threshold)' if d.boost is not None else ''}, "
                                           f"hold duty {d.hold.duty:.3f} at {d.hold.frequency_hz / 1e3:.4g} kHz"))
         status(f"wrote plot {plot}")
 

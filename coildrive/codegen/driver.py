@@ -100,6 +100,10 @@ class DriverView:
                              f"{d.drive.hold.fast_fraction:g}: this driver's bridge holds in slow "
                              "decay only (its hold duty would be wrong for mixed decay), expected "
                              "fast_fraction left out for firmware-driver and emulate --firmware")
+        if d.drive.supply.boosted:
+            raise InputError(d.drive.source or d.drive.name, "supply.boost",
+                             "the reference driver runs the peak for its ticks; a boosted peak's boost "
+                             "switch and current threshold are not in it yet (the header has their constants)")
         if self.regulation not in ("fixed", "supply_table", "current", "closed_loop"):
             raise InputError(d.drive.source or d.drive.name, "hold.regulation",
                              f"{self.regulation!r}: this driver runs the fixed, supply-table, "

@@ -126,12 +126,14 @@ class HeaderView:
         if d.armature is not None:
             self.constants += _armature_constants(d, m)
         self.bypass_constants = _bypass_constants(d, m)
+        self.boost_constants = _boost_constants(d, m)
         self.topology_constants, self.topology = _topology_constants(d, m)
         self.bridge_bits, self.bridge_phases = _bridge_constants(d, m)
         self.table = list(zip(d.duty_table.adc_codes, d.duty_table.compare_ticks, d.duty_table.supply_v))
         self.constants = _current_relabel_fallback(d, m, self.constants)
         self.current_constants = _current_header_constants(d, m)
         self.current_checks = (_current_header_checks(d, m) + _loop_header_checks(d, m)
+                               + _boost_header_checks(d, m)
                                + _mixed_header_checks(d, m))
         self.current_summary = _current_header_summary(d) + _loop_header_summary(d)
         self.loop_constants = _loop_header_constants(d, m)
@@ -144,6 +146,9 @@ def _peak_comment(d: Design) -> str:
     p = d.pull_in
     if p.peak_ticks is None:
         return "no peak: " + (p.not_reached or "the pull-in current is not reached")
+    if d.boost is not None:
+        return (f"boosted peak time-out: {p.peak_time_s * 1e3:.4g} ms (longest peak to the threshold "
+                f"{d.boost.time_to_threshold_s * 1e3:.4g} ms x {p.margin:g}, +1 tick)")
     how = (f"worst pull-in {p.time_s * 1e3:.4g} ms x {p.margin:g}" if p.governed_by == "time margin" else
            f"{p.current_margin:g} x pull-in current by the shortest peak")
     text = f"peak phase: {p.peak_time_s * 1e3:.4g} ms ({how}, +1 tick)"
@@ -224,6 +229,39 @@ def _bridge_constants(d: Design, m: str) -> tuple[list[Constant], list[Constant]
         phases.append(Constant(f"{m}_BRIDGE_{BRIDGE_PHASES[phase][0]}_SWITCHES", mask,
                                f"{on} on -- {BRIDGE_PHASES[phase][1]}"))
     return bits, phases
+
+
+def _boost_constants(d: Design, m: str) -> list[Constant]:
+    """With a boosted peak: its threshold code, time-out and the boost's recharge, in ticks."""
+    b = d.boost
+    if b is None or b.timeout_ticks is None:
+        return []
+    rate = d.drive.board.tick.rate
+    out = [
+        Constant(f"{m}_BOOST_PEAK", 1, f"the peak runs from the {b.boost_v:.4g} V boost"),
+        Constant(f"{m}_BOOST_THRESHOLD_CODE", b.threshold_code,
+                 f"end the peak at or above {b.threshold_a:.4g} A (current-sense code)"),
+        Constant(f"{m}_BOOST_TIMEOUT_TICKS", b.timeout_ticks,
+                 f"no threshold by then: a fault (longest peak {b.time_to_threshold_s * 1e3:.4g} ms x "
+                 f"{d.pull_in.margin:g}, +1 tick)"),
+    ]
+    if b.recharge_time_s is not None:
+        out += [
+            Constant(f"{m}_BOOST_RECHARGE_TICKS", math.ceil(b.recharge_time_s * rate - 1e-9),
+                     f"the boost takes {b.recharge_time_s * 1e3:.4g} ms to put back "
+                     f"{b.energy_j * 1e3:.4g} mJ at {b.power_w:.4g} W"),
+            Constant(f"{m}_BOOST_MIN_INTERVAL_TICKS", math.ceil(b.min_interval_s * rate - 1e-9),
+                     f"shortest switch-on to switch-on ({b.min_interval_s * 1e3:.4g} ms)"),
+        ]
+    return out
+
+
+def _boost_header_checks(d: Design, m: str) -> list[tuple[str, str]]:
+    if not _boost_constants(d, m):
+        return []
+    return [(f"{m}_BOOST_THRESHOLD_CODE >= {m}_ADC_OVER_CURRENT_CODE || {m}_BOOST_THRESHOLD_CODE < {m}_ADC_PULL_IN_CODE",
+             "boost threshold outside pull-in .. over-current"),
+            (f"{m}_BOOST_TIMEOUT_TICKS != {m}_PEAK_TICKS", "boost time-out differs from the peak ticks")]
 
 
 def _bypass_constants(d: Design, m: str) -> list[Constant]:

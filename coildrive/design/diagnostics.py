@@ -26,6 +26,8 @@ import math
 import numpy as np
 
 from ..config import Drive
+from ..model import eddy
+from ..model.eddy import EddyCoil
 from ..model.circuit import open_inductance
 from ..model.flux import FluxCoil
 from ..model.rl import rise_time
@@ -81,7 +83,13 @@ def rise_check(drive: Drive, grid: CornerGrid, res: PointResults, conversion_hz:
         s_low = s_high = np.ones(v.shape, int)
     # the earliest healthy crossing: the channel reading high, noise a few codes up
     i_early = max(code - NOISE_CODES, 0) * lsb_a / high
-    t = np.asarray(rise_time(i_early, 0.0, v, r, ind), float)
+    eddy_coil = isinstance(lp.inductance, EddyCoil)
+    if eddy_coil:   # the terminal current steps at switch-on, then rises with the flux
+        ind = lp.inductance[...]
+        scale = np.broadcast_to(np.asarray(res.l_factor, float), v.shape)
+        t = np.asarray(eddy.terminal_rise_time(i_early, v, r, ind), float)
+    else:
+        t = np.asarray(rise_time(i_early, 0.0, v, r, ind), float)
     product = t * conversion_hz * s_low
     k = int(np.argmin(product))
     fastest = float(t[k])
@@ -91,7 +99,10 @@ def rise_check(drive: Drive, grid: CornerGrid, res: PointResults, conversion_hz:
     # turns lower it too, which only makes the rise faster)
     i_late = (code + 1 + NOISE_CODES) * lsb_a / low
     with np.errstate(divide="ignore", invalid="ignore"):
-        if flux_coil:   # the time scales with the curve's scale: s per unit of scale
+        if eddy_coil:   # the time scales with the magnetising branch: s per unit of scale
+            per_l = np.asarray(eddy.terminal_rise_time(i_late, v, r, ind), float) / scale
+            factor = float(max(np.min((limit / s_high - 1.0) / conversion_hz / per_l), 0.0))
+        elif flux_coil:   # the time scales with the curve's scale: s per unit of scale
             per_l = np.asarray(rise_time(i_late, 0.0, v, r, ind.with_scale(np.ones(v.shape))), float)
             factor = float(max(np.min((limit / s_high - 1.0) / conversion_hz / per_l), 0.0))
         else:

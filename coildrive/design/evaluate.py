@@ -17,7 +17,7 @@ import numpy as np
 
 from ..config import Drive
 from ..model.circuit import Loop, freewheel_element_energy, loop, two_paths
-from ..model.pwm import PwmSteadyState, duty_for_mean, pwm_steady_state
+from ..model.pwm import PwmSteadyState, duty_for_mean, coil_heat, pwm_steady_state
 from ..model.rl import decay_current, decay_integrals, decay_time
 from ..model.thermal import settle_temperature
 from .supply import rise_current as bus_rise_current
@@ -34,7 +34,7 @@ def hold_power(drive: Drive, supply, r_factor, l_factor, duty, frequency, factor
         lp = loop(drive, supply, temp, r_factor, l_factor, **factors)
         ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance,
                               mixed=lp.mixed)
-        return ss.rms**2 * lp.r_coil
+        return coil_heat(ss, lp.r_coil)
     return power_at
 
 
@@ -211,7 +211,7 @@ def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
     i_peak = bus_rise_current(drive, lp, peak_time, lp.inductance)
     ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance,
                           mixed=lp.mixed)
-    power = ss.rms**2 * lp.r_coil
+    power = coil_heat(ss, lp.r_coil)
     i_off = ss.i_max
     lp_rel = (loop(drive, supply, finite, r_factor, l_factor, path="release", **factors)
               if two_paths(drive) else lp)

@@ -13,6 +13,7 @@ import math
 import numpy as np
 
 from ..config import Drive
+from ..model import eddy
 from ..model.circuit import full_bridge, split_decay
 from ..model.flux import small_signal
 from ..model.losses import HoldLosses
@@ -219,7 +220,8 @@ def release_result(drive: Drive, grid: CornerGrid, res: PointResults, offs: list
     k_rel = worst(res.release_time)
     rating = drive.switch.max_voltage
     settle = float(np.max(res.release_zero_time))
-    if res.armature is not None:
+    if res.armature is not None or drive.coil.eddy_resistance:
+        # the armature back on its stop; the flux (an eddy term) down to the drop-out current
         settle = max(settle, float(np.max(res.release_time)))
     lockout = math.ceil(settle * drive.board.tick.rate - 1e-9) + 1 if math.isfinite(settle) else 0
     v_sw = max(float(np.max(res.peak_switch_voltage)), *(o["switch_voltage_v"] for o in offs))
@@ -252,6 +254,10 @@ def adc_thresholds(drive: Drive, res: PointResults, res_low: PointResults, min_m
     low, high = reading_factors(drive)
     peaks = np.asarray(res.peak_end_current, float)
     tops = np.asarray(res.hold.i_max, float)
+    if res.hold.terminal_max is not None:   # an eddy term: the channel reads the terminal current
+        lp = res.loop
+        peaks = np.asarray(eddy.terminal(peaks, lp.v_on, lp.r_on, lp.inductance.resistance), float)
+        tops = np.asarray(res.hold.terminal_max, float)
     healthy = np.maximum(np.where(np.isfinite(peaks), peaks, 0.0), np.where(np.isfinite(tops), tops, 0.0))
     k = worst(healthy)
     over_a = OVER_CURRENT_FACTOR * float(healthy[k]) * high

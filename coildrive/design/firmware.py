@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from .boost import firmware_peak
 from .envelope import table_index
 from .figures import adc_code
 from .loop_duty import settled_duty
@@ -12,19 +13,23 @@ from .regulation import table_lookup
 from .result import Design
 
 
-def firmware_setting(design: Design, supply: float, coil_temp: float | None = None) -> tuple[float, float]:
+def firmware_setting(design: Design, supply: float, coil_temp: float | None = None,
+                     r_factor: float = 1.0, l_factor: float = 1.0) -> tuple[float, float]:
     """``(duty, peak s)`` the firmware runs at bus voltage ``supply`` (its reading taken at
     the nominal divider): the table entries where it looks them up (a current-mode hold:
     the fixed-duty fallback's duty). A closed-loop hold's duty is where its loop settles
     with the coil at ``coil_temp`` degC (default: its reference temperature clipped into
-    the ambient range), nominal parts."""
+    the ambient range), nominal parts. A boosted peak's is its time to the threshold there
+    (the coil's ``r_factor``/``l_factor`` too; :func:`coildrive.design.boost.firmware_peak`)."""
     drive = design.drive
     duty = design.hold.duty
     peak = design.pull_in.peak_time_s or 0.0
+    temp = coil_temp
+    if temp is None:
+        temp = min(max(drive.coil.reference_temp, drive.ambient.min), drive.ambient.max)
+    if design.boost is not None and peak > 0:
+        peak = firmware_peak(design, supply, temp, r_factor, l_factor)
     if design.hold.regulation == "closed_loop":
-        temp = coil_temp
-        if temp is None:
-            temp = min(max(drive.coil.reference_temp, drive.ambient.min), drive.ambient.max)
         duty = settled_duty(design, supply, temp)
     b = drive.board
     if b.supply_sense is None:

@@ -30,11 +30,13 @@ from ..model.circuit import split_decay
 from ..model.losses import HoldLosses, hold_losses
 from ..model.pwm import pwm_steady_state
 from .diagnostics import rise_check, seat_check
+from .boost import boost_cautions, boost_checks, boost_result, boosted_points, boosted_turn_offs
 from .checks import base_checks, cautions, energy_checks, loss_cautions, loss_checks
 from .corners import nominal_point
 from .envelope import supply_codes
 from .evaluate import PointResults, evaluate
 from .firmware import firmware_arrays, firmware_setting
+from .eddy import eddy_result
 from .figures import (ASSUMED_DIODE_DROP, adc_code, adc_thresholds, corners_of, hold_spread,
                       loss_figures, path_name, pull_in_result, release_result, slow_hold_drive,
                       worst)
@@ -61,6 +63,9 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     :func:`coildrive.design.montecarlo.monte_carlo`).
     """
     board = drive.board
+    if samples > 0 and drive.supply.boosted:
+        raise InputError(drive.source, "supply.boost", "the tolerance Monte Carlo does not model the "
+                         "boosted peak yet: expected no --monte-carlo with supply.boost")
     timer = timer_for(drive)
     f_hold = timer.frequency_hz
     period = timer.period_ticks
@@ -103,6 +108,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                        short, reuse=first, **at)
     res = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor, d_high, f_hold,
                    long_, reuse=first if np.array_equal(d_low, d_high) else None, **at)
+    res = boosted_points(drive, res)   # a boosted peak's highest end current and turn-off
     loss = _losses(drive, res, f_hold)
     corners = corners_of(env, res_low, loss, high=res, duty=d_high, drive=drive)
     nom_grid = nominal_point(drive)
@@ -138,7 +144,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     hold = dataclasses.replace(hold, split_decay_saving=_split_saving(drive, hold))
     peak_end = np.asarray(res.peak_end_current, float)
     thresholds = adc_thresholds(drive, res, res_low, hold.min_mean_current_a, env)
-    offs = turn_offs(drive, env, res, peak_end, thresholds.trip_current_a)
+    offs = boosted_turn_offs(drive, env, res, turn_offs(drive, env, res, peak_end, thresholds.trip_current_a))
     release = release_result(drive, env, res, offs)
     topo = topology_result(drive, env, res, peak_end, thresholds.trip_current_a)
     release = pumped_release(release, topo)
@@ -164,6 +170,9 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                         lambda v: adc_code(v / sense.divider, board.adc.reference, board.adc.bits),
                         thresholds.supply_min_code)
     checks += supply_checks(sup)
+    boost = boost_result(drive, env, res_low, board.tick.rate) if drive.supply.boosted else None
+    checks += boost_checks(drive, boost)
+    notes += boost_cautions(boost)
     if thermal is not None and thermal.cycle is not None:
         notes[2] = cycle_caution(thermal)   # the envelope's hot coil is the cycle's
     notes += thermal_cautions(thermal)
@@ -173,9 +182,9 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                  checks=checks, cautions=notes, monte_carlo=None,
                  input_hash=drive.input_hash(), worst_corner_index=pk.k_pull, armature=arm,
                  split_decay=split, actuation_points=points, peak_table=pk.table,
-                 thermal_cycle=thermal, topology=topo, supply=sup,
+                 thermal_cycle=thermal, topology=topo, supply=sup, boost=boost,
                  rise_check=rise_check(drive, env, res, f_hold),
-                 seat_check=seat_check(drive, env, res_low))
+                 seat_check=seat_check(drive, env, res_low), eddy=eddy_result(drive, env, res))
     if samples > 0:
         from .montecarlo import monte_carlo
 
@@ -260,7 +269,7 @@ def actuation(design: Design, supply: float, coil_temp: float, hold_time: float,
                          f"{design.drive.freewheel.bypass_lead * 1e6:.4g} us is longer than the hold "
                          f"on-time ({s.on_time_counts / s.count_rate_hz * 1e6:.4g} us): the "
                          "bypass would open during an off-time")
-    duty, peak = firmware_setting(design, supply)
+    duty, peak = firmware_setting(design, supply, coil_temp, r_factor, l_factor)
     return waveform(design.drive, supply, coil_temp, peak, duty, design.hold.frequency_hz, hold_time,
                     r_factor, l_factor, points, label=label)
 

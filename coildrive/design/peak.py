@@ -34,6 +34,7 @@ from .corners import CornerGrid
 from .evaluate import PointResults
 from .figures import worst
 from .result import PeakTable
+from .boost import slowest_peak
 from .supply import rise_current, rise_time, steady_current
 
 
@@ -106,6 +107,13 @@ def plan_peak(drive: Drive, grid: CornerGrid, first: PointResults, entry_results
     tf_all, i_force = force_times(drive, first)
     k_force = worst(tf_all)
     ticks, by_time, by_force = requirement(drive, t_pull, tf_all)
+    if drive.supply.boosted:
+        # the peak ends at its threshold (the force current) at every point; the ticks are
+        # the time-out: the worst corner's longest peak x margin (design/boost.py)
+        t_end = slowest_peak(drive, first.loop)
+        ticks = by_time = _ticks(float(np.max(np.where(np.isnan(t_end), np.inf, t_end))) * drive.pull_in.margin,
+                                 rate)
+        by_force = None
     not_reached = None
     lp = first.loop
     if ticks is None:
@@ -113,10 +121,16 @@ def plan_peak(drive: Drive, grid: CornerGrid, first: PointResults, entry_results
         k = int(np.argmin(i_inf))
         not_reached = (f"not reached: steady current {float(i_inf[k]):.4g} A < pull-in "
                        f"{drive.pull_in.current:.4g} A at {grid.label(k)}")
+        if drive.supply.boosted:
+            i_th = drive.pull_in.current_margin * drive.pull_in.current
+            not_reached = (f"not reached: the boost at its lowest drives at most {float(i_inf[k]):.4g} A, "
+                           f"below its threshold {i_th:.4g} A at {grid.label(k)}")
         if drive.armature is not None and math.isfinite(float(i_inf[k])) and i_inf[k] > drive.pull_in.current:
             not_reached = (f"not reached: the armature does not seat at {grid.label(k_pull)} "
                            "(see the armature_seats check)")
     governed = "" if ticks is None else ("force margin" if (by_force or 0) > (by_time or 0) else "time margin")
+    if drive.supply.boosted and ticks is not None:
+        governed = "time-out; ends at the current threshold"
     table = None
     n = len(grid)
     if ticks is not None and entry_results is not None:
@@ -131,6 +145,8 @@ def plan_peak(drive: Drive, grid: CornerGrid, first: PointResults, entry_results
             ticks = max(entries)
     if ticks is None:
         short = long_ = np.zeros(n)
+    elif drive.supply.boosted:   # each point's peak ends at the threshold, at the latest when seen
+        short, long_ = np.asarray(tf_all, float), np.asarray(t_end, float)
     elif table is not None:
         ent = np.asarray(table.peak_ticks)
         codes = np.asarray(table.adc_codes)

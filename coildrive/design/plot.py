@@ -17,6 +17,8 @@ def plot_design(d: Design, waveforms: dict, thermal: dict | None = None) -> byte
     """
     peak = ("pull-in not reached" if d.pull_in.peak_time_s is None else
             f"peak {d.pull_in.peak_time_s * 1e3:.3g} ms")
+    if d.boost is not None and d.pull_in.peak_time_s is not None:
+        peak = f"boost peak to {d.boost.threshold_a:.3g} A, time-out {d.pull_in.peak_time_s * 1e3:.3g} ms"
     title = (f"{d.drive.name} on {d.drive.board.name}: duty {d.hold.duty:.3f} at "
              f"{d.hold.frequency_hz / 1e3:.4g} kHz ({d.hold.regulation}), {peak}")
     return _plot(d, waveforms, "worst", title, thermal=thermal)
@@ -49,16 +51,23 @@ def _plot(d: Design, waveforms: dict, phases: str, title: str, velocity: bool = 
     colours = {"nominal": "tab:blue", "worst": "tab:red", "simulated": "tab:blue"}
     for key, w in waveforms.items():
         ax.plot(w.time * 1e3, w.current, lw=0.9, color=colours.get(key), label=w.label)
+        if w.magnetising_current is not None:   # an eddy term: the flux's current too
+            ax.plot(w.time * 1e3, w.magnetising_current, lw=1.4, ls="--", color="k" if key == "simulated"
+                    else colours.get(key), alpha=0.9, label=f"{key}: magnetising current (the flux)")
     w = waveforms[phases]
     ev = w.events
     split = w.bypass_on is not None
-    ax.axvspan(0, ev["hold"] * 1e3, color="tab:orange", alpha=0.12, label="peak")
+    boosted = d.boost is not None
+    ax.axvspan(0, ev["hold"] * 1e3, color="tab:orange", alpha=0.12,
+               label=f"boost peak ({d.boost.boost_v:.3g} V, to the threshold)" if boosted else "peak")
     ax.axvspan(ev["hold"] * 1e3, ev["off"] * 1e3, color="tab:green", alpha=0.08,
                label="hold (PWM, slow decay: bypass on)" if split else "hold (PWM)")
     ax.axvspan(ev["off"] * 1e3, ev["zero"] * 1e3, color="tab:gray", alpha=0.15,
                label="release (fast decay: bypass open)" if split else "release")
     if split:
         _bypass_trace(d, waveforms, ax, colours)
+    if boosted:
+        _boost_trace(d, waveforms, ax, colours)
     ax.axhline(d.pull_in.current_a, color="k", ls="--", lw=0.8)
     ax.text(0, d.pull_in.current_a, " pull-in", va="bottom", fontsize=8)
     ax.axhline(d.hold.current_a, color="k", ls=":", lw=0.8)
@@ -76,6 +85,19 @@ def _plot(d: Design, waveforms: dict, phases: str, title: str, velocity: bool = 
     ax.grid(alpha=0.3)
     ax.legend(fontsize=7, loc="upper right")
     return png_bytes(fig)
+
+
+def _boost_trace(d: Design, waveforms: dict, ax, colours: dict) -> None:
+    """A boosted peak: its threshold, and the boost capacitor's voltage on a second axis."""
+    b = d.boost
+    ax.axhline(b.threshold_a, color="tab:orange", ls="--", lw=0.8)
+    ax.text(0, b.threshold_a, " boost threshold", va="bottom", fontsize=8)
+    ax_b = ax.twinx()
+    for key, w in waveforms.items():
+        if w.boost_voltage is not None:
+            ax_b.plot(w.time * 1e3, w.boost_voltage, color=colours.get(key), lw=0.8, ls="--", alpha=0.7)
+    ax_b.set_ylim(0.0, 1.15 * b.boost_max_v)
+    ax_b.set_ylabel("boost capacitor [V] (dashed)", fontsize=8)
 
 
 def _bypass_trace(d: Design, waveforms: dict, ax, colours: dict) -> None:

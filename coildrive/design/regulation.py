@@ -27,7 +27,7 @@ import numpy as np
 
 from ..config import Drive
 from ..model.circuit import loop
-from ..model.pwm import duty_for_mean, pwm_steady_state
+from ..model.pwm import duty_for_mean, coil_heat, pwm_steady_state
 from .envelope import (Envelope, HeatingGrid, Tolerances, bracket_tops, envelope, heating_grid,
                        hottest, lowest_supply_for_code, supply_codes, table_index, tolerances)
 from .evaluate import hold_temperature
@@ -240,4 +240,4 @@ def coil_power_at(drive: Drive, plan: HoldPlan, k: int, frequency: float, period
     lp = loop(drive, heat.supply[k:k + 1], temp, tk.r_factor, tk.l_factor, **_factors(tk))
     ss = pwm_steady_state(plan.heat_compare[k] / period, frequency, lp.v_on, lp.r_on, lp.r_off,
                           lp.v_off, lp.inductance, mixed=lp.mixed)
-    return float((ss.rms**2 * lp.r_coil)[0])
+    return float(coil_heat(ss, lp.r_coil)[0])

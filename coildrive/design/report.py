@@ -43,6 +43,7 @@ def summary_table(d: Design) -> Table:
         *_loss_rows(d),
         ("release time", _ms(r.time_s), f"to {r.dropout_current_a:.4g} A via {r.freewheel}; zero after {_ms(r.zero_time_s)}"),
         *_turn_off_rows(d),
+        *_eddy_rows(d),
         ("peak switch voltage", f"{r.peak_switch_voltage_v:.4g} V",
          f"every turn-off; limit {r.switch_limit_v:.4g} V ({r.switch_rating_v:.4g} V rating, derated)"),
         ("ADC thresholds", f"{a.pull_in_code}/{a.hold_code}/{a.over_current_code}/{a.open_load_code}",
@@ -116,6 +117,12 @@ def _pull_in_rows(d: Design) -> list:
     p = d.pull_in
     if p.peak_ticks is None:
         return [("pull-in", "not reached", p.not_reached or "")]
+    if d.boost is not None:
+        return [
+            ("pull-in time (worst)", _ms(p.time_s), f"to {p.current_a:.4g} A at {p.worst_corner}, from the boost"),
+            *_boost_rows(d),
+            ("current at end of peak", f"<= {p.peak_end_current_max_a:.4g} A", f"at {p.peak_end_corner}"),
+        ]
     force = (f"{p.current_margin:g} x pull-in = {p.force_current_a:.4g} A by the shortest peak "
              f"({p.peak_ticks - 1} ticks): {p.shortest_peak_current_a:.4g} A at {p.force_corner}"
              if p.force_time_s is not None else
@@ -130,6 +137,38 @@ def _pull_in_rows(d: Design) -> list:
          + (f"; + settle {_ms(p.settle_time_s)}" if p.settle_time_s > 0 else "")),
         ("current at end of peak", f"<= {p.peak_end_current_max_a:.4g} A", f"at {p.peak_end_corner}"),
     ]
+
+
+def _boost_rows(d: Design) -> list:
+    """The boosted peak: threshold, time-out, droop, energy and recharge, switch voltage."""
+    b = d.boost
+    cap = (f"{b.capacitance_f * 1e6:.4g} uF (min {b.capacitance_min_f * 1e6:.4g} uF)" if b.capacitance_f > 0
+           else "an ideal source")
+    rows = [
+        ("boost", f"{b.boost_v:.4g} V", f"{b.boost_min_v:.4g}..{b.boost_max_v:.4g} V, {cap}, "
+         f"path {b.boost_resistance_ohm:.4g} ohm"),
+        ("peak threshold", f"{b.threshold_a:.4g} A", f"{d.pull_in.current_margin:g} x pull-in; ADC code "
+         f"{b.threshold_code} (trips by {b.trip_max_a:.4g} A with the chain reading low)"),
+    ]
+    if b.time_to_threshold_s is None:
+        return rows + [("  longest peak", "not reached",
+                        f"the boost at its lowest drives at most {b.reachable_current_a:.4g} A")]
+    rows += [
+        ("  longest peak", _ms(b.time_to_threshold_s),
+         f"until the threshold is seen (trip by {b.trip_max_a:.4g} A, one conversion late) at "
+         f"{b.time_to_threshold_corner}; fastest to {b.threshold_a:.4g} A {_ms(b.fastest_time_s)}"),
+        ("  peak time-out", _ms(b.timeout_s), f"{b.timeout_ticks} ticks = longest peak x {d.pull_in.margin:g}, +1 tick"),
+        ("  boost at end of peak", f">= {b.lowest_boost_v:.4g} V",
+         f"droops {b.droop_v:.4g} V at {b.lowest_boost_corner} (main supply {b.main_supply_there_v:.4g} V)"),
+        ("  boost energy / actuation", f"{b.energy_j * 1e3:.4g} mJ", f"at {b.energy_corner}"),
+    ]
+    if b.recharge_time_s is not None:
+        rows.append(("  boost recharge", _ms(b.recharge_time_s),
+                     f"at {b.power_w:.4g} W; shortest actuation interval {_ms(b.min_interval_s)}"))
+    rows.append(("  switch at peak turn-off", f"{b.switch_voltage_v:.4g} V",
+                 f"boost at full charge + freewheel at {b.end_current_max_a:.4g} A "
+                 f"({b.end_switch_voltage_v:.4g} V from the capacitor's voltage at the end)"))
+    return rows
 
 
 def _supply_rows(d: Design) -> list:
@@ -163,6 +202,24 @@ def _regulation_how(d: Design) -> str:
         return (f"PI loop on the current sampled in the {h.closed_loop.sample_point}, once a PWM "
                 "period (table below)")
     return "one compare value at every supply"
+
+
+def _eddy_rows(d: Design) -> list:
+    """The eddy-current term: its step, where the release stops conducting, its energy."""
+    e = d.eddy
+    if e is None:
+        return []
+    src = ("" if e.given == "coil.eddy_resistance" else
+           f" (L / {format_si(e.time_constant_s, 's')}, {e.given})")
+    return [("eddy resistance", format_si(e.resistance_ohm, "ohm", 4),
+             f"across the magnetising branch{src}; tau = L / R_e = {format_si(e.time_constant_s, 's')}"),
+            ("switch-on step", f"{e.switch_on_step_a:.4g} A", f"V / (R_on + R_e) at {e.step_corner}"),
+            ("eddy energy: release", format_si(e.release_eddy_energy_j, "J"),
+             f"beside {format_si(e.release_freewheel_energy_j, 'J')} in the freewheel path at "
+             f"{e.release_corner}; the path stops conducting below {e.block_current_a:.4g} A of "
+             f"magnetising current, the flux reaches drop-out up to {_ms(e.flux_outlasts_s)} later"),
+            ("eddy power: hold", f"{e.hold_eddy_power_w:.3g} W",
+             f"in the core (part of the coil power) at {e.hold_corner}")]
 
 
 def _turn_off_rows(d: Design) -> list:

@@ -365,6 +365,37 @@ class ReleaseResult:
 
 
 @dataclass(frozen=True)
+class EddyResult:
+    """The eddy-current term (``design --json`` key ``eddy``; docs/coil-model.md).
+
+    ``resistance_ohm`` across the magnetising branch, ``time_constant_s`` its ``L / R_e``
+    with the small-signal inductance, ``given`` the file key it came from.
+    ``switch_on_step_a``: the terminal current's step at switch-on, ``V / (R_on + R_e)``,
+    at its highest corner (``step_corner``). ``block_current_a``: the magnetising current
+    at which the release path stops conducting (``V_off / R_e``; the flux then dies
+    through ``R_e``), its highest. ``release_eddy_energy_j``: the eddy resistance's share
+    of the release from the top of the hold ripple, at its worst corner
+    (``release_corner``), beside ``release_freewheel_energy_j``, the freewheel elements'
+    there. ``flux_outlasts_s``: how much longer the flux takes to fall to the drop-out
+    current than the terminal current takes to reach zero (0 when it does not).
+    ``hold_eddy_power_w``: the eddy resistance's power in the hold, at its worst corner
+    (``hold_corner``)."""
+
+    resistance_ohm: float
+    time_constant_s: float
+    given: str
+    switch_on_step_a: float
+    step_corner: str
+    block_current_a: float
+    release_eddy_energy_j: float
+    release_freewheel_energy_j: float
+    release_corner: str
+    flux_outlasts_s: float
+    hold_eddy_power_w: float
+    hold_corner: str
+
+
+@dataclass(frozen=True)
 class BridgeResult:
     """A full bridge's decay paths and the energy its fast decay returns to the supply
     (``design --json`` key ``topology.bridge``). Energies in J, voltages in V.
@@ -429,6 +460,57 @@ class SupplyResult:
     ripple_corner: str
     ripple_method: str
     hold_droop_v: float
+
+
+@dataclass(frozen=True)
+class BoostResult:
+    """The boosted peak (``[supply] boost``): the boost at its nominal, lowest and highest
+    (V), its capacitor (F; 0 = an ideal source) and path resistance (ohm), charging power
+    (W; 0 = not given); the threshold (A), its ADC code and the highest true current that
+    code trips at (A); the worst corner's time until the firmware sees the threshold (s:
+    the highest trip current, one conversion late, the boost at its lowest; ``None`` when a
+    corner never gets there: ``reachable_current_a`` is the most the boost at its lowest
+    drives) and the fastest time to the threshold; the time-out (ticks, s); the highest
+    current at the end of the peak (A; one conversion late); the boost capacitor at the end
+    of the peak at its lowest (V), the main supply there and the droop from the lowest
+    charge (V); the energy drawn per
+    actuation (J), the capacitor's stored energy at full charge (J), the recharge time at
+    ``power_w`` and the shortest actuation interval it allows (s, switch-on to switch-on;
+    ``None`` without a power); the switch's voltage turning off the end current from the
+    boost at full charge (V, checked) and at the capacitor's voltage at the end."""
+
+    boost_v: float
+    boost_min_v: float
+    boost_max_v: float
+    capacitance_f: float
+    capacitance_min_f: float
+    boost_resistance_ohm: float
+    power_w: float
+    threshold_a: float
+    threshold_code: int
+    trip_max_a: float
+    code_fits: bool
+    time_to_threshold_s: float | None
+    time_to_threshold_corner: str
+    fastest_time_s: float
+    fastest_corner: str
+    timeout_ticks: int | None
+    timeout_s: float | None
+    reachable_current_a: float
+    end_current_max_a: float
+    end_current_corner: str
+    lowest_boost_v: float | None
+    lowest_boost_corner: str
+    main_supply_there_v: float
+    droop_v: float | None
+    energy_j: float
+    energy_corner: str
+    stored_energy_j: float
+    recharge_time_s: float | None
+    min_interval_s: float | None
+    switch_voltage_v: float
+    switch_voltage_corner: str
+    end_switch_voltage_v: float
 
 
 @dataclass(frozen=True)
@@ -640,6 +722,9 @@ class Design(Verdict):
     seat_check: SeatCheck | None = None
     datasheet: object | None = None   # design.datasheet.DatasheetResult, with datasheet inputs
     supply: SupplyResult | None = None
+    boost: BoostResult | None = None
+
+    eddy: EddyResult | None = None
 
     def to_dict(self) -> dict:
         """Plain JSON-ready dict (the ``design --json`` document)."""
@@ -673,6 +758,8 @@ class Design(Verdict):
             out["topology"] = topo
         if self.supply is not None:
             out["supply"] = asdict(self.supply)
+        if self.boost is not None:
+            out["boost"] = asdict(self.boost)
         if self.armature is not None:
             out["armature"] = asdict(self.armature)
         if self.split_decay is not None:
@@ -693,6 +780,8 @@ class Design(Verdict):
             out["rise_check"] = asdict(self.rise_check)
         if self.seat_check is not None:
             out["seat_check"] = asdict(self.seat_check)
+        if self.eddy is not None:
+            out["eddy"] = asdict(self.eddy)
         return json_ready(out)
 
 

@@ -14,6 +14,7 @@ import numpy as np
 from ..config import Drive
 from ..model import rl
 from ..model import supply as bus_model
+from . import boost
 from .result import Check, SupplyResult
 
 #: How the hold's capacitor ripple current is approximated (shown in the JSON and docs).
@@ -27,7 +28,10 @@ def _bus(drive: Drive, lp, inductance) -> bus_model.Bus:
 
 
 def rise_time(drive: Drive, lp, i_target, inductance) -> np.ndarray:
-    """Time (s) from switch-on to ``i_target`` A at the points of the loop ``lp``."""
+    """Time (s) from switch-on to ``i_target`` A at the points of the loop ``lp`` (from the
+    boost at its lowest with a boosted peak, :mod:`coildrive.design.boost`)."""
+    if drive.supply.boosted:
+        return boost.rise_time(drive, lp, i_target, inductance)
     if not drive.supply.droops:
         return rl.rise_time(i_target, 0.0, lp.v_on, lp.r_on, inductance)
     return bus_model.rise_time(i_target, _bus(drive, lp, inductance))
@@ -35,13 +39,18 @@ def rise_time(drive: Drive, lp, i_target, inductance) -> np.ndarray:
 
 def rise_current(drive: Drive, lp, t, inductance) -> np.ndarray:
     """Current (A) ``t`` s after switch-on at the points of the loop ``lp``."""
+    if drive.supply.boosted:
+        return boost.rise_current(drive, lp, t, inductance)
     if not drive.supply.droops:
         return rl.rise_current(t, 0.0, lp.v_on, lp.r_on, inductance)
     return bus_model.current(t, _bus(drive, lp, inductance))
 
 
 def steady_current(drive: Drive, lp) -> np.ndarray:
-    """The current (A) a peak that never ends settles at: ``V/(R + R_s)``."""
+    """The current (A) a peak that never ends settles at: ``V/(R + R_s)`` (with a boost
+    capacitor, the most it drives)."""
+    if drive.supply.boosted:
+        return boost.steady_current(drive, lp)
     return lp.v_on / (lp.r_on + drive.supply.source_resistance)
 
 

@@ -523,10 +523,16 @@ def _refuse(system: System, ch) -> None:
         key, why = "coil.flux_current", "a flux-linkage curve"
     elif d.armature is not None:
         key, why = "armature", "a moving armature"
-    elif d.hold.mode != "voltage" or d.hold.regulation == "closed_loop":
-        key, why = "hold.mode", f"a {d.hold.regulation.replace('_', ' ')} hold"
+    elif d.hold.mode != "voltage":
+        key, why = "hold.mode", "a latching coil" if d.hold.mode == "latch" else "a current-mode hold"
+    elif d.hold.regulation == "closed_loop":
+        key, why = "hold.regulation", "a closed-loop hold"
     elif d.switch.topology == "full_bridge":
         key, why = "switch.topology", "a full bridge"
+    elif d.coil.eddy_resistance:
+        key, why = "coil.eddy_resistance", "an eddy-current term"
+    elif d.supply.boosted:
+        key, why = "supply.boost", "a boosted peak"
     if why is not None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
                          "in a system yet; expected a linear coil, no [armature], one switch and a "

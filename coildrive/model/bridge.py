@@ -39,6 +39,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from . import rlc
 from .rl import decay_integrals, decay_time
 
 
@@ -134,8 +135,9 @@ def pump_up(i0, v1, capacitance, r_off, inductance, v_diode) -> PumpUp:
 
     With ``q`` the charge into the capacitor and ``x = q + C (v1 + 2 V_d)``, the loop
     gives ``L x'' + R x' + x / C = 0``, ``x(0) = C (v1 + 2 V_d)``, ``x'(0) = i0``: the
-    series RLC circuit of any circuits textbook, with ``alpha = R / 2L`` and ``omega0 =
-    1 / sqrt(LC)``. The current ``i = x'`` stops at its first zero:
+    series RLC circuit of any circuits textbook (:mod:`coildrive.model.rlc`), with
+    ``alpha = R / 2L`` and ``omega0 = 1 / sqrt(LC)``. The current ``i = x'`` stops at its
+    first zero:
 
     * underdamped (``omega0 > alpha``, ``omega_d = sqrt(omega0^2 - alpha^2)``): ``i =
       e^(-alpha t) (i0 cos omega_d t - (alpha b + omega_d a) sin omega_d t)`` with ``a =
@@ -149,31 +151,8 @@ def pump_up(i0, v1, capacitance, r_off, inductance, v_diode) -> PumpUp:
     r, ind = np.asarray(r_off, float), np.asarray(inductance, float)
     i0, v1, c, r, ind, vd = np.broadcast_arrays(i0, v1, c, r, ind, np.asarray(v_diode, float))
     a = c * (v1 + 2.0 * vd)
-    alpha = r / (2.0 * ind)
-    w0sq = 1.0 / (ind * c)
-    disc = w0sq - alpha**2
-    scale = np.maximum(w0sq, alpha**2)
-    under = disc > 1e-12 * scale
-    over = disc < -1e-12 * scale
-    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
-        # underdamped
-        wd = np.sqrt(np.where(under, disc, 1.0))
-        b = (i0 + alpha * a) / wd
-        t_u = np.arctan2(i0, alpha * b + wd * a) / wd
-        x_u = np.exp(-alpha * t_u) * (a * np.cos(wd * t_u) + b * np.sin(wd * t_u))
-        # overdamped
-        beta = np.sqrt(np.where(over, -disc, 1.0))
-        s1, s2 = -alpha + beta, -alpha - beta
-        c1 = (i0 - s2 * a) / (s1 - s2)
-        c2 = a - c1
-        t_o = np.log(-s2 * c2 / (s1 * c1)) / (s1 - s2)
-        x_o = c1 * np.exp(s1 * t_o) + c2 * np.exp(s2 * t_o)
-        # critically damped
-        k = i0 + alpha * a
-        t_c = i0 / (alpha * k)
-        x_c = (a + k * t_c) * np.exp(-alpha * t_c)
-    t_zero = np.where(under, t_u, np.where(over, t_o, t_c))
-    x = np.where(under, x_u, np.where(over, x_o, x_c))
+    t_zero = rlc.first_zero(a, i0, r, ind, c)
+    x, _ = rlc.state(t_zero, a, i0, r, ind, c)
     q = x - a
     v2 = v1 + q / c
     return PumpUp(v2, v2 - v1, 0.5 * c * (v2**2 - v1**2), t_zero, q)

@@ -53,7 +53,7 @@ import numpy as np
 from ..config import Drive
 from .bridge import fast_switch_voltage
 from ..copper import COPPER_ALPHA, copper_resistance  # noqa: F401  (re-exported)
-from . import flux
+from . import eddy, flux
 from .pwm import MixedDecay
 
 
@@ -73,7 +73,7 @@ class Loop:
     r_on: np.ndarray
     r_off: np.ndarray
     v_off: np.ndarray
-    inductance: np.ndarray   # or a flux.FluxCoil: a saturating coil at these points
+    inductance: np.ndarray   # or a flux.FluxCoil (a saturating coil) or an eddy.EddyCoil
     r_coil: np.ndarray
     supply: np.ndarray
     bypassed: bool = False
@@ -183,6 +183,8 @@ def loop(drive: Drive, supply, coil_temp, r_factor=1.0, l_factor=1.0, path: str 
     supply, r_on, r_off, v_off, inductance, r_coil, v_diode, v_fast = arrays
     if curve:   # a saturating coil: its curve, scaled by the tolerance (model.flux)
         inductance = flux.FluxCoil(curve, inductance)
+    if coil.eddy_resistance:   # an eddy resistance across the magnetising branch (model.eddy)
+        inductance = eddy.EddyCoil(inductance, np.broadcast_to(coil.eddy_resistance, supply.shape))
     mixed = None
     if kind == "slow" and drive.hold.fast_fraction > 0:
         mixed = MixedDecay(drive.hold.fast_fraction, r_coil + r_sense + 0.0 * supply,

@@ -197,8 +197,9 @@ class FluxCoil:
 
 def small_signal(inductance):
     """The inductance a report shows per point: H as given for a linear coil, the
-    incremental inductance at zero current for a :class:`FluxCoil`."""
-    return inductance.small_signal() if isinstance(inductance, FluxCoil) else inductance
+    incremental inductance at zero current for a :class:`FluxCoil` (or the magnetising
+    branch's, for a coil with an eddy resistance)."""
+    return inductance.small_signal() if hasattr(inductance, "small_signal") else inductance
 
 
 def incremental_at(inductance, i):

@@ -54,6 +54,20 @@ class Track:
         return self.t_off[0] - np.interp(i0, self.i_off, self.t_off)
 
 
+def stitch_periods(t0, t_on: float, on_t, off_t, *values):
+    """The hold's periods (rows: period start ``t0`` s, on-time sample times ``on_t`` and
+    off-time ones ``off_t`` from their segment's start) as flat samples, without the
+    first sample (the peak's end) and the last period's off-time (the release starts at
+    the top of its on-time): ``(time s, switch 0/1, *columns)``, one column per
+    ``(on values, off values)`` pair in ``values``."""
+    keep = np.ones((on_t.shape[0], on_t.shape[1] + off_t.shape[1]), dtype=bool)
+    keep[-1, on_t.shape[1]:] = False
+    rows = [np.concatenate([t0 + on_t, t0 + t_on + off_t], axis=1),
+            np.concatenate([np.ones_like(on_t), np.zeros_like(off_t)], axis=1)]
+    rows += [np.concatenate(pair, axis=1) for pair in values]
+    return tuple(r[keep][1:] for r in rows)
+
+
 def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: float,
               hold_time: float, points: int):
     """The sample pieces of one actuation: ``(time, current, switch_on, t_off, i_off)``
@@ -87,14 +101,10 @@ def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: 
     extra = np.where(t_zero < t_off, t_zero, t_off * (points - 0.5) / points)
     off_t = np.sort(np.concatenate([off_t, extra[:, None]], axis=1), axis=1)
     off_i = tr.decay(tops[:, None], off_t)
-    period_t = np.concatenate([t0 + on_t, t0 + t_on + off_t], axis=1)
-    period_i = np.concatenate([on_i, off_i], axis=1)
-    period_on = np.concatenate([np.ones_like(on_t), np.zeros_like(off_t)], axis=1)
-    keep = np.ones_like(period_t, dtype=bool)
-    keep[-1, on_t.shape[1]:] = False
-    ts.append(period_t[keep][1:])
-    cs.append(period_i[keep][1:])
-    ons.append(period_on[keep][1:])
+    t_flat, on_flat, i_flat = stitch_periods(t0, t_on, on_t, off_t, (on_i, off_i))
+    ts.append(t_flat)
+    cs.append(i_flat)
+    ons.append(on_flat)
     t_cut = peak_time + (n - 1) * period + t_on
     i_cut = float(tops[-1])
     tz = float(tr.to_zero(i_cut))

@@ -31,6 +31,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from . import eddy
+from .eddy import EddyCoil
 from .flux import FluxCoil, linear_orbit, orbit
 from .rl import decay_integrals, decay_time, rise_integrals
 
@@ -42,6 +44,14 @@ class PwmSteadyState:
     ``charge_on``/``square_on`` and ``charge_off``/``square_off`` are the integrals of
     ``i`` and ``i^2`` over one period's on and off segments; with the loop resistances
     and voltages they give every power in the circuit (supply, copper, switch, freewheel).
+
+    With an eddy resistance (:mod:`coildrive.model.eddy`): ``i_min``/``i_max`` are the
+    magnetising current's (the state the turn-offs start from), the integrals, ``mean``
+    and ``rms`` the terminal current's (the mean is the same: the branch voltage
+    averages to zero over a period), ``ripple`` is the terminal current's highest less
+    its lowest (``terminal_max`` - ``terminal_min``, what the sense resistor sees),
+    ``dcm`` says the freewheel stops conducting in the off-time, and ``eddy_energy`` is
+    the eddy resistance's energy per period (J). Those three are ``None`` without one.
     """
 
     i_min: np.ndarray
@@ -56,6 +66,9 @@ class PwmSteadyState:
     square_on: np.ndarray
     charge_off: np.ndarray
     square_off: np.ndarray
+    terminal_min: np.ndarray | None = None
+    terminal_max: np.ndarray | None = None
+    eddy_energy: np.ndarray | None = None
     charge_fast: np.ndarray | float = 0.0
     square_fast: np.ndarray | float = 0.0
 
@@ -139,6 +152,8 @@ def pwm_steady_state(duty, frequency, v_on, r_on, r_off, v_off, inductance,
     mixed : a full bridge's mixed decay (:func:`mixed_steady_state`; ``v_off`` is then
         unused, the slow path has none), or ``None``
     """
+    if isinstance(inductance, EddyCoil):
+        return _eddy_steady_state(duty, frequency, v_on, r_on, r_off, v_off, inductance)
     if mixed is not None and mixed.fraction > 0:
         return mixed_steady_state(duty, frequency, v_on, r_on, r_off, inductance, mixed)
     if isinstance(inductance, FluxCoil):
@@ -180,8 +195,38 @@ def _flux_steady_state(duty, frequency, v_on, r_on, r_off, v_off, coil: FluxCoil
                           charge_off=o.charge_off, square_off=o.square_off)
 
 
+def coil_heat(ss: PwmSteadyState, r_coil):
+    """W that heats the coil in the hold: the copper's ``I_rms^2 R_coil``, plus the eddy
+    currents' loss in the core (``eddy_energy`` per period) when there is an eddy term."""
+    heat = ss.rms**2 * r_coil
+    return heat if ss.eddy_energy is None else heat + ss.eddy_energy / ss.period
+
+
+def _eddy_steady_state(duty, frequency, v_on, r_on, r_off, v_off, coil: EddyCoil) -> PwmSteadyState:
+    """:func:`pwm_steady_state` with an eddy resistance, from its exact orbit
+    (:func:`coildrive.model.eddy.orbit`)."""
+    duty, frequency = np.broadcast_arrays(np.asarray(duty, float), np.asarray(frequency, float))
+    period = 1.0 / frequency
+    t_on = duty * period
+    o = eddy.orbit(coil, t_on, period - t_on, v_on, r_on, r_off, v_off)
+    mean = (o.charge_on + o.charge_off) / period
+    rms = np.sqrt(np.maximum((o.square_on + o.square_off) / period, 0.0))
+    period = np.broadcast_to(period, np.shape(mean))
+    return PwmSteadyState(i_min=o.i_min, i_max=o.i_max, mean=mean, rms=rms,
+                          ripple=o.terminal_max - o.terminal_min, dcm=o.dcm,
+                          conduction_off=o.conduction_off, period=period, charge_on=o.charge_on,
+                          square_on=o.square_on, charge_off=o.charge_off, square_off=o.square_off,
+                          terminal_min=o.terminal_min, terminal_max=o.terminal_max,
+                          eddy_energy=o.eddy_energy)
+
+
 def _points(inductance):
-    """``(array to broadcast, rebuild)``: a FluxCoil broadcasts by its scale."""
+    """``(array to broadcast, rebuild)``: a FluxCoil broadcasts by its scale, an
+    EddyCoil by the index of its (flattened) points."""
+    if isinstance(inductance, EddyCoil):
+        whole = eddy.flat(inductance, inductance.shape)
+        index = np.arange(whole.resistance.size, dtype=float).reshape(inductance.shape)
+        return index, lambda x: whole[np.asarray(x).astype(int)]
     if isinstance(inductance, FluxCoil):
         return np.asarray(inductance.scale, float), inductance.with_scale
     return inductance, lambda x: x

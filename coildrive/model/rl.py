@@ -8,14 +8,19 @@ Every segment of a switched coil has the form ``i(t) = a + b * exp(-t / tau)``:
 
 All functions broadcast over numpy arrays; units are A, V, ohm, H, s. Where ``l`` is a
 :class:`~coildrive.model.flux.FluxCoil` (a saturating coil) the segment functions hand
-over to :mod:`coildrive.model.flux`, which solves the same segments by exact quadrature.
+over to :mod:`coildrive.model.flux`, which solves the same segments by exact quadrature;
+an :class:`~coildrive.model.eddy.EddyCoil` (an eddy resistance across the magnetising
+branch) to :mod:`coildrive.model.eddy`, whose currents are the magnetising current and
+whose integrals are the terminal current's (see there).
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-from . import flux
+from . import eddy, flux
+from .eddy import EddyCoil
+from .exponential import segment_integrals
 from .flux import FluxCoil
 
 ArrayLike = "float | np.ndarray"
@@ -23,6 +28,8 @@ ArrayLike = "float | np.ndarray"
 
 def rise_current(t, i0, v, r, l):
     """Current in A after ``t`` s of switch-on from ``i0`` A: ``V/R + (i0 - V/R) e^(-t/tau)``."""
+    if isinstance(l, EddyCoil):
+        return eddy.rise_current(t, i0, v, r, l)
     if isinstance(l, FluxCoil):
         return flux.current(l, t, i0, v, r)
     a = np.asarray(v, float) / r
@@ -31,6 +38,8 @@ def rise_current(t, i0, v, r, l):
 
 def rise_time(i1, i0, v, r, l):
     """Time in s for a rise from ``i0`` to ``i1`` A; ``inf`` where ``i1 >= V/R`` (unreachable)."""
+    if isinstance(l, EddyCoil):
+        return eddy.rise_time(i1, i0, v, r, l)
     if isinstance(l, FluxCoil):
         i0, i1 = np.asarray(i0, float), np.asarray(i1, float)
         return np.where(i1 <= i0, 0.0, flux.time(l, i0, np.maximum(i1, i0), v, r))
@@ -45,6 +54,8 @@ def rise_time(i1, i0, v, r, l):
 
 def decay_current(t, i0, r, v_off, l):
     """Current in A after ``t`` s of freewheeling from ``i0`` A, held at zero once it gets there."""
+    if isinstance(l, EddyCoil):
+        return eddy.decay_current(t, i0, r, v_off, l)
     if isinstance(l, FluxCoil):
         return np.maximum(flux.current(l, t, i0, -np.asarray(v_off, float), r), 0.0)
     b = np.asarray(v_off, float) / r
@@ -57,6 +68,8 @@ def decay_time(i1, i0, r, v_off, l):
 
     ``V_off`` must be positive when ``i1`` is zero (a diode drop always is).
     """
+    if isinstance(l, EddyCoil):
+        return eddy.decay_time(i1, i0, r, v_off, l)
     if isinstance(l, FluxCoil):
         i0 = np.asarray(i0, float)
         return flux.time(l, i0, np.minimum(np.asarray(i1, float), i0), -np.asarray(v_off, float), r)
@@ -68,23 +81,10 @@ def decay_time(i1, i0, r, v_off, l):
     return np.where(i1 >= i0, 0.0, t)
 
 
-def segment_integrals(a, b, tau, t):
-    """Integrals over ``0..t`` of ``i = a + b e^(-s/tau)``.
-
-    Returns
-    -------
-    charge : ``int i ds`` in A*s (coulomb)
-    square : ``int i^2 ds`` in A^2*s (times a resistance gives joule)
-    """
-    e1 = -np.expm1(-np.asarray(t, float) / tau)  # 1 - e^(-t/tau), accurate for small t
-    e2 = e1 * (2.0 - e1)  # 1 - e^(-2t/tau) = (1 - e^(-t/tau)) (1 + e^(-t/tau))
-    charge = a * t + b * tau * e1
-    square = a * a * t + 2.0 * a * b * tau * e1 + b * b * tau * 0.5 * e2
-    return charge, square
-
-
 def rise_integrals(t, i0, v, r, l):
     """``(int i dt, int i^2 dt)`` over a switch-on segment of length ``t``."""
+    if isinstance(l, EddyCoil):
+        return eddy.rise_integrals(t, i0, v, r, l)[:2]
     if isinstance(l, FluxCoil):
         end = flux.current(l, t, i0, v, r)
         return flux.integral(l, i0, end, v, r, 1), flux.integral(l, i0, end, v, r, 2)
@@ -94,6 +94,8 @@ def rise_integrals(t, i0, v, r, l):
 
 def decay_integrals(t, i0, r, v_off, l):
     """``(int i dt, int i^2 dt)`` over a freewheel segment of length ``t`` (must end at i >= 0)."""
+    if isinstance(l, EddyCoil):
+        return eddy.decay_integrals(t, i0, r, v_off, l)[:2]
     if isinstance(l, FluxCoil):
         v = -np.asarray(v_off, float)
         end = np.maximum(flux.current(l, t, i0, v, r), 0.0)

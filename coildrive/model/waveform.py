@@ -24,7 +24,9 @@ import numpy as np
 from ..config import Drive
 from . import bridge
 from .circuit import full_bridge, loop, split_decay
+from . import boost as boost_model
 from . import supply as bus_model
+from .eddy import EddyCoil
 from .flux import FluxCoil
 from .rl import decay_current, decay_time, rise_current
 from .topology import coil_voltage, sense_leg_drop, topology_of
@@ -48,6 +50,8 @@ class Waveform:
     bridge has ``switches`` (each of its four switches' state, 0/1, by name:
     :data:`coildrive.model.bridge.SWITCHES`) and ``coil_voltage``; its ``switch_on`` is 1
     in the on-times (Q1 + Q4), its ``switch_voltage`` the highest of the four switches'.
+    ``boost_voltage`` (V; a boosted peak only, else ``None``) is the boost capacitor:
+    its discharge in the peak, then its recharge (:func:`coildrive.model.boost.voltage_trace`).
     """
 
     time: np.ndarray
@@ -62,13 +66,17 @@ class Waveform:
     bypass_on: np.ndarray | None = None
     node_voltage: np.ndarray | None = None
     coil_voltage: np.ndarray | None = None
+    boost_voltage: np.ndarray | None = None
+    magnetising_current: np.ndarray | None = None
     switches: dict[str, np.ndarray] | None = None
 
     def to_csv(self) -> str:
         """CSV text with header ``time_s,current_a,switch_on,switch_voltage_v,sense_current_a``
         (then ``bypass_on`` with split decay, ``position_m,velocity_m_s`` with an armature,
         ``node_voltage_v,coil_voltage_v`` with a high-side switch, ``high_a_on,low_a_on,
-        high_b_on,low_b_on,coil_voltage_v`` with a full bridge)."""
+        high_b_on,low_b_on,coil_voltage_v`` with a full bridge, ``magnetising_current_a``
+        with an eddy-current term, ``boost_v`` with a boosted
+        peak)."""
         buf = io.StringIO()
         cols = [self.time, self.current, self.switch_on, self.switch_voltage, self.sense_current]
         head = "time_s,current_a,switch_on,switch_voltage_v,sense_current_a"
@@ -89,6 +97,14 @@ class Waveform:
             cols += [*self.switches.values(), self.coil_voltage]
             head += "".join(f",{name}_on" for name in self.switches) + ",coil_voltage_v"
             fmt += ["%d"] * len(self.switches) + ["%.6e"]
+        if self.magnetising_current is not None:
+            cols.append(self.magnetising_current)
+            head += ",magnetising_current_a"
+            fmt.append("%.9e")
+        if self.boost_voltage is not None:
+            cols.append(self.boost_voltage)
+            head += ",boost_v"
+            fmt.append("%.6e")
         buf.write(head + "\n")
         np.savetxt(buf, np.column_stack(cols), delimiter=",", fmt=fmt)
         return buf.getvalue()
@@ -110,6 +126,9 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
         return armature_actuation(drive, supply, coil_temp, peak_time, duty, frequency,
                                   hold_time, r_factor, l_factor, points, label)
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
+    if isinstance(lp.inductance, EddyCoil):   # an eddy-current term: its own sampling
+        return _eddy_actuation(drive, lp, supply, peak_time, duty, frequency, hold_time,
+                               points, label)
     if split_decay(drive):
         return _split_actuation(drive, lp, supply, coil_temp, peak_time, duty, frequency,
                                 hold_time, r_factor, l_factor, points, label)
@@ -135,8 +154,19 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
 
     # Release: decay to zero (a full bridge's through its fast path).
     fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") if full_bridge(drive) else lp
-    return release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_offedge, i_off, big, label,
-                            release_lp=fast)
+    w = release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_offedge, i_off, big, label,
+                         release_lp=fast)
+    if drive.supply.boosted:
+        w = dataclasses.replace(w, boost_voltage=boost_model.voltage_trace(
+            w.time, peak_time, nominal_boost(drive, r_on, ind), drive.supply.boost_power))
+    return w
+
+
+def nominal_boost(drive: Drive, r_on: float, ind: float) -> boost_model.Boost:
+    """The boost at its nominal voltage and capacitance feeding the on-loop ``r_on`` ohm
+    (with the boost path's own resistance), ``ind`` H."""
+    s = drive.supply
+    return boost_model.boost(s.boost, s.boost_capacitance, r_on + s.boost_resistance, ind)
 
 
 def _mixed_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_time: float,
@@ -187,16 +217,50 @@ def _flux_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: flo
     return Waveform(time, current, on, v_sw, sense, events, label)
 
 
+#: With an eddy term, the time between the rows before and after a switch edge (s).
+EDGE = 1e-9
+
+
+def _eddy_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: float,
+                    frequency: float, hold_time: float, points: int, label: str) -> Waveform:
+    """:func:`actuation` with an eddy resistance (:mod:`coildrive.model.eddy_waveform`):
+    ``current`` is the terminal current, ``magnetising_current`` the flux's."""
+    from .eddy_waveform import actuation as eddy_samples
+
+    ts, cs, ms, ons, t_cut, t_zero = eddy_samples(drive, lp, peak_time, duty, frequency,
+                                                   hold_time, points)
+    time = np.concatenate(ts)
+    # each switch edge has a row before and after the step: the one after sits EDGE s
+    # later (a switch edge's own scale), so that time rises strictly
+    step = np.diff(time)
+    gap = min(EDGE, 0.01 * step[step > 1e-15].min(initial=1.0))
+    for _ in range(4):   # a step that also ends the conduction: three rows at one instant
+        same = np.flatnonzero(np.diff(time) <= 1e-15) + 1      # the same instant, to rounding
+        if same.size == 0:
+            break
+        time[same] = time[same - 1] + gap
+    current = np.concatenate(cs)
+    on = np.concatenate(ons).astype(np.int8)
+    v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
+    events = {"on": 0.0, "hold": peak_time, "off": t_cut, "zero": t_zero}
+    return Waveform(time, current, on, v_sw, sense, events, label,
+                    **node_columns(drive, supply, current, on, v_sw),
+                    magnetising_current=np.concatenate(ms))
+
+
 def peak_samples(peak_time: float, v: float, r_on: float, ind: float, big: int,
                  ts: list, cs: list, ons: list, drive: Drive | None = None) -> float:
     """Append the peak phase -- full on from zero current for ``peak_time`` s, ``big`` + 1
     samples, through the on-loop ``v`` V, ``r_on`` ohm, ``ind`` H -- to the sample pieces
     ``ts``/``cs``/``ons`` (s, A, 0/1); returns the current at its end, A. With a
     ``drive`` whose supply has a source resistance the rise is on the drooping bus
-    (:mod:`coildrive.model.supply`; the hold that follows sees the stiff supply)."""
+    (:mod:`coildrive.model.supply`; the hold that follows sees the stiff supply); with a
+    boosted peak it runs from the boost at its nominal (:mod:`coildrive.model.boost`)."""
     tp = np.linspace(0.0, peak_time, big + 1)
     ts.append(tp)
-    if drive is not None and drive.supply.droops:
+    if drive is not None and drive.supply.boosted:
+        cs.append(boost_model.state(tp, nominal_boost(drive, r_on, ind))[0])
+    elif drive is not None and drive.supply.droops:
         cs.append(bus_model.current(tp, bus_model.bus(v, drive.supply.source_resistance,
                                                       drive.supply.capacitance, r_on, ind)))
     else:

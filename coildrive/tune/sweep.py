@@ -648,6 +648,10 @@ def check_tunable(drive: Drive, who: str, sweep: bool = False) -> None:
     if drive.hold.fast_fraction > 0:
         raise InputError(drive.source, "hold.fast_fraction", "tuning does not step a mixed-decay "
                          "hold yet: tune with fast_fraction = 0, then design with the fraction")
+    if drive.coil.eddy_resistance:
+        key = "coil.eddy_time_constant" if drive.coil.eddy_time_constant else "coil.eddy_resistance"
+        raise InputError(drive.source, key, "tuning does not support an eddy-current term yet: "
+                         "tune without it, then design with it")
 
 
 def tune(drive: Drive, options: TuneOptions | None = None) -> TuneResult:

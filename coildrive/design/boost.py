@@ -1,0 +1,259 @@
+"""The boosted peak in the design (``[supply] boost``): the peak runs from the boost until
+the current-sense ADC reads the threshold code, with a time-out; the hold runs from the
+main supply. Physics in :mod:`coildrive.model.boost`.
+
+* The threshold is ``pull_in.current_margin`` x the pull-in current; its code is the
+  smallest one every sense chain (resistor and amplifier tolerances) reaches only at or
+  above it, so the real trip lies between the threshold and the code's current as a
+  low-reading chain sees it -- and a threshold compared once per conversion is seen up to
+  one conversion late (common practice), which the highest end current includes.
+* The slow side (pull-in, force, time-out): the boost at its lowest (``boost`` less
+  ``boost_tolerance``, the capacitance less its tolerance) with the envelope's hot coil --
+  the capacitor's droop is in the rise. The time-out is the worst corner's time to the
+  threshold x ``pull_in.margin`` in whole ticks (+1, a phase starts anywhere in a tick).
+* The fast side (end current, switch voltage, energy): the boost at its highest.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+
+import numpy as np
+
+from ..config import Drive
+from ..model import boost as model
+from ..model.circuit import loop
+from .corners import CornerGrid
+from .envelope import reading_factors
+from .result import BoostResult, Check
+
+
+def _boost(drive: Drive, lp, inductance, high: bool) -> model.Boost:
+    s = drive.supply
+    sign = 1.0 if high else -1.0
+    return model.boost(s.boost * (1.0 + sign * s.boost_tolerance),
+                       s.boost_capacitance * (1.0 + sign * s.boost_capacitance_tolerance),
+                       lp.r_on + s.boost_resistance, inductance)
+
+
+def rise_time(drive: Drive, lp, i_target, inductance) -> np.ndarray:
+    """Time (s) to ``i_target`` A from the boost at its lowest, at the points of ``lp``."""
+    return model.threshold_time(i_target, _boost(drive, lp, inductance, False))
+
+
+def rise_current(drive: Drive, lp, t, inductance) -> np.ndarray:
+    """Current (A) ``t`` s after switch-on from the boost at its lowest."""
+    return model.state(t, _boost(drive, lp, inductance, False))[0]
+
+
+def steady_current(drive: Drive, lp) -> np.ndarray:
+    """The most current the boost at its lowest drives (A): its first maximum, or ``V/R``."""
+    return model.highest_current(_boost(drive, lp, lp.inductance, False))
+
+
+def threshold(drive: Drive) -> tuple[float, int, float]:
+    """``(threshold A, ADC code, highest true current at which that code trips A)``."""
+    b = drive.board
+    vpa = b.sense.resistance * b.sense.gain
+    lsb = b.adc.reference / 2**b.adc.bits
+    low, high = reading_factors(drive)
+    i_th = drive.pull_in.current_margin * drive.pull_in.current
+    code = math.ceil(i_th * vpa * high / lsb - 1e-9)
+    return i_th, code, code * lsb / (vpa * low)
+
+
+def nominal_trip(drive: Drive) -> float:
+    """The true current (A) at which the threshold code trips with a nominal sense chain."""
+    b = drive.board
+    return threshold(drive)[1] * (b.adc.reference / 2**b.adc.bits) / (b.sense.resistance * b.sense.gain)
+
+
+def firmware_peak(design, supply: float, coil_temp: float, r_factor: float = 1.0,
+                  l_factor: float = 1.0) -> float:
+    """The boosted peak the firmware runs at one point (s): until a nominal sense chain
+    reads the threshold code, from the boost at its nominal voltage and capacitance, or the
+    time-out if sooner."""
+    drive = design.drive
+    s = drive.supply
+    lp = loop(drive, supply, coil_temp, r_factor, l_factor)
+    b = model.boost(s.boost, s.boost_capacitance, lp.r_on + s.boost_resistance, lp.inductance)
+    t = float(model.threshold_time(nominal_trip(drive), b))
+    return min(t, design.pull_in.peak_time_s or 0.0)
+
+
+def _seen(drive: Drive, b: model.Boost) -> np.ndarray:
+    """When the firmware sees the threshold at the latest (s; ``inf`` where never): the
+    highest trip current (the chain reading low), one conversion late."""
+    return model.threshold_time(threshold(drive)[2], b) + 1.0 / drive.board.adc.sample_rate
+
+
+def slowest_peak(drive: Drive, lp) -> np.ndarray:
+    """The longest peak at each point (s; ``inf`` where the threshold is never reached):
+    the boost at its lowest until the firmware sees the threshold. Its worst x
+    ``pull_in.margin`` is the time-out."""
+    return _seen(drive, _boost(drive, lp, lp.inductance, False))
+
+
+def end_current(drive: Drive, lp) -> np.ndarray:
+    """The highest current at the end of the peak (A) at each point: the boost at its
+    highest, up to the highest trip current, one conversion late."""
+    b = _boost(drive, lp, lp.inductance, True)
+    t = _seen(drive, b)
+    return np.where(np.isfinite(t), model.state(np.where(np.isfinite(t), t, 0.0), b)[0],
+                    model.highest_current(b))
+
+
+def _turn_off_voltage(drive: Drive, lp, v_top, current) -> np.ndarray:
+    """The low-side switch's voltage at the end of the peak: the top of the coil at
+    ``v_top`` V plus the freewheel path's voltage at ``current`` A."""
+    return np.asarray(v_top, float) + lp.switch_voltage(drive, current) - lp.supply
+
+
+def boosted_points(drive: Drive, res):
+    """``res`` (:class:`~coildrive.design.evaluate.PointResults`, the points with the most
+    current) with the boosted peak's highest end current, and the switch voltage of its
+    turn-off from the boost at full charge. (A boosted peak has one freewheel path: no
+    split decay, no bridge.)"""
+    if not drive.supply.boosted:
+        return res
+    lp = res.loop
+    i_end = end_current(drive, lp)
+    interrupt = np.maximum(i_end, res.hold.i_max)
+    v_sw = lp.switch_voltage(drive, interrupt)
+    v_boost = _turn_off_voltage(drive, lp, drive.supply.boost * (1.0 + drive.supply.boost_tolerance), i_end)
+    return dataclasses.replace(res, peak_end_current=i_end, interrupt_current=interrupt,
+                               peak_switch_voltage=np.maximum(v_sw, v_boost))
+
+
+def boosted_turn_offs(drive: Drive, grid: CornerGrid, res, offs: list[dict]) -> list[dict]:
+    """The turn-offs (:func:`coildrive.design.turnoff.turn_offs`) with the boost's share: a
+    peak cut short and an over-current trip may come while the boost feeds the coil, so
+    the switch sees the boost at full charge, not the main supply, plus the freewheel
+    path's voltage at the event's current. (The energies do not change: the freewheel
+    path across the coil takes the coil's energy whatever the rail.)"""
+    if not drive.supply.boosted:
+        return offs
+    lp = res.loop
+    v_top = drive.supply.boost * (1.0 + drive.supply.boost_tolerance)
+    out = []
+    for o in offs:
+        if o["event"] in ("end of peak", "over-current trip"):
+            v = _turn_off_voltage(drive, lp, v_top, np.full(np.shape(res.supply), o["current_a"]))
+            k = int(np.argmax(v))
+            if float(v[k]) > o["switch_voltage_v"]:
+                o = {**o, "switch_voltage_v": float(v[k]), "switch_voltage_corner": grid.label(k) + ", from the boost"}
+        out.append(o)
+    return out
+
+
+def boost_result(drive: Drive, grid: CornerGrid, res, rate: float) -> BoostResult:
+    """The boosted peak's figures over the points of ``res`` (hot coil at every corner for
+    the slow side); ``rate`` the scheduler tick rate (Hz)."""
+    s = drive.supply
+    lp = res.loop
+    i_th, code, i_trip = threshold(drive)
+    slow = _boost(drive, lp, lp.inductance, False)
+    fast = _boost(drive, lp, lp.inductance, True)
+    t_slow = _seen(drive, slow)            # the longest peak at each point
+    finite = np.isfinite(t_slow)
+    reached = bool(np.all(finite))
+    reachable = model.highest_current(slow)
+    # the worst corner: the longest peak, or where the boost drives the least
+    k_slow = int(np.argmax(t_slow) if reached else np.argmin(reachable))
+    t_fast = model.threshold_time(i_th, fast)
+    k_fast = int(np.argmin(t_fast))
+    # slow side: the capacitor at the end of the peak (its lowest, while the boost alone
+    # feeds the coil)
+    t_low = np.where(finite, t_slow, 0.0)
+    v_low = model.state(t_low, slow)[1]
+    headroom = np.where(finite, v_low - np.asarray(res.supply, float), -np.inf)
+    k_low = int(np.argmin(headroom))
+    # fast side: the most current, energy and switch voltage
+    t_end = _seen(drive, fast)
+    t_end = np.where(np.isfinite(t_end), t_end, model.peak_time(fast))
+    i_end, v_end = model.state(t_end, fast)
+    energy = np.maximum(model.energy_drawn(t_end, fast), model.energy_drawn(t_low, slow))
+    k_e, k_i = int(np.argmax(energy)), int(np.argmax(i_end))
+    v_top = s.boost * (1.0 + s.boost_tolerance)
+    v_sw = _turn_off_voltage(drive, lp, v_top, i_end)
+    v_sw_end = _turn_off_voltage(drive, lp, v_end, i_end)
+    k_v = int(np.argmax(v_sw))
+    timeout = (math.ceil(float(t_slow[k_slow]) * drive.pull_in.margin * rate - 1e-9) + 1) if reached else None
+    recharge = interval = None
+    if s.boost_power > 0:
+        recharge = float(model.recharge_time(energy[k_e], s.boost_power))
+        interval = float(max(np.max(t_end), np.max(t_low))) + recharge
+    cap = s.boost_capacitance
+    return BoostResult(
+        boost_v=s.boost, boost_min_v=s.boost * (1.0 - s.boost_tolerance), boost_max_v=v_top,
+        capacitance_f=cap, capacitance_min_f=cap * (1.0 - s.boost_capacitance_tolerance),
+        boost_resistance_ohm=s.boost_resistance, power_w=s.boost_power,
+        threshold_a=i_th, threshold_code=code, trip_max_a=i_trip,
+        code_fits=code <= 2**drive.board.adc.bits - 1,
+        time_to_threshold_s=float(t_slow[k_slow]) if reached else None,
+        time_to_threshold_corner=grid.label(k_slow),
+        fastest_time_s=float(t_fast[k_fast]), fastest_corner=grid.label(k_fast),
+        timeout_ticks=timeout, timeout_s=None if timeout is None else timeout / rate,
+        reachable_current_a=float(reachable[k_slow] if not reached else np.min(reachable)),
+        end_current_max_a=float(i_end[k_i]), end_current_corner=grid.label(k_i),
+        lowest_boost_v=float(v_low[k_low]) if reached else None, lowest_boost_corner=grid.label(k_low),
+        main_supply_there_v=float(res.supply[k_low]),
+        droop_v=float(s.boost * (1.0 - s.boost_tolerance) - v_low[k_low]) if reached else None,
+        energy_j=float(energy[k_e]), energy_corner=grid.label(k_e),
+        stored_energy_j=0.5 * cap * (1.0 + s.boost_capacitance_tolerance) * v_top**2,
+        recharge_time_s=recharge, min_interval_s=interval,
+        switch_voltage_v=float(v_sw[k_v]), switch_voltage_corner=grid.label(k_v),
+        end_switch_voltage_v=float(v_sw_end[k_v]))
+
+
+def boost_checks(drive: Drive, b: BoostResult | None) -> list[Check]:
+    """The threshold is reached at every corner and fits the ADC; the boost capacitor stays
+    above the main supply until the threshold; the switch takes the boost's turn-off."""
+    if b is None:
+        return []
+    out = []
+    if b.time_to_threshold_s is None:
+        out.append(Check("boost_threshold", False,
+                         f"the boost at its lowest drives at most {b.reachable_current_a:.4g} A, below the "
+                         f"threshold {b.threshold_a:.4g} A (at {b.time_to_threshold_corner}) -- a larger "
+                         "boost capacitance (supply.boost_capacitance) or a higher boost voltage"))
+    else:
+        ok = b.code_fits
+        out.append(Check("boost_threshold", ok,
+                         f"{b.threshold_a:.4g} A (code {b.threshold_code}) seen after at most "
+                         f"{b.time_to_threshold_s * 1e3:.4g} ms at {b.time_to_threshold_corner}; time-out "
+                         f"{b.timeout_ticks} ticks" + ("" if ok else
+                         " -- the code is above the ADC's full scale: a smaller sense resistance or gain")))
+        ok = b.lowest_boost_v > b.main_supply_there_v
+        out.append(Check("boost_droop", ok,
+                         f"the boost capacitor falls {b.droop_v:.4g} V to {b.lowest_boost_v:.4g} V by the "
+                         f"end of the peak at {b.lowest_boost_corner}, main supply {b.main_supply_there_v:.4g} V"
+                         + ("" if ok else " -- the main supply would take over before the threshold: a "
+                            "larger boost capacitance (supply.boost_capacitance)")))
+    sw = drive.switch
+    limit = sw.max_voltage * sw.derating
+    ok = b.switch_voltage_v <= limit
+    out.append(Check("boost_switch_voltage", ok,
+                     f"turning off {b.end_current_max_a:.4g} A from the boost at full charge: the switch "
+                     f"sees up to {b.switch_voltage_v:.4g} V vs {limit:.4g} V ({sw.derating:.0%} of the "
+                     f"{sw.max_voltage:.4g} V rating)" + ("" if ok else " -- a higher-rated switch or a "
+                                                        "lower boost voltage")))
+    return out
+
+
+def boost_cautions(b: BoostResult | None) -> list[str]:
+    """The boost's voltage and its capacitor's stored energy."""
+    if b is None:
+        return []
+    above = b.boost_max_v > 60.0
+    out = [f"The boost rail reaches {b.boost_max_v:.3g} V" + (
+           ": above 60 V DC, outside the extra-low-voltage range of many codes (a shock hazard)"
+           if above else " (below 60 V DC, the extra-low-voltage limit of many codes)")
+           + "; a charged rail can still arc and burn on an open board: keep it guarded, and "
+           "follow local codes and licensed practice."]
+    if b.capacitance_f > 0:
+        out.append(f"The boost capacitor stores up to {b.stored_energy_j:.3g} J and keeps it after the "
+                   "board is switched off: give it a bleed resistor, discharge it before touching the "
+                   "board, and rate it above the boost voltage.")
+    return out

@@ -1,0 +1,51 @@
+"""The eddy-current term's figures in the design (``design --json`` key ``eddy``).
+
+The physics is :mod:`coildrive.model.eddy`; every figure of the design already follows
+it (the pull-in time is the magnetising current's, the hold's mean and ripple the
+terminal current's, the release time the flux's). This module adds what only the eddy
+term has: the switch-on step, where the release path stops conducting, and how the
+energies split between the freewheel elements and the eddy resistance. Units: ohm, s,
+A, J, W.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..config import Drive
+from ..model import eddy
+from ..model.circuit import freewheel_element_energy
+from .corners import CornerGrid
+from .evaluate import PointResults
+from .figures import worst
+from .result import EddyResult
+
+
+def eddy_result(drive: Drive, grid: CornerGrid, res: PointResults) -> EddyResult | None:
+    """The eddy term's figures over the corners of ``res`` (``None`` without one)."""
+    coil = drive.coil
+    if not coil.eddy_resistance:
+        return None
+    lp = res.loop
+    rel = res.release_loop if res.release_loop is not None else lp
+    e = lp.inductance
+    r_e = coil.eddy_resistance
+    step = np.asarray(lp.v_on / (lp.r_on + r_e), float)
+    block = np.asarray(eddy.block_current(rel.v_off, r_e) + 0.0 * step, float)
+    i_off = np.asarray(res.hold.i_max, float)
+    t_zero = eddy.conduction_time(i_off, rel.r_off, rel.v_off, e)
+    q, s, w_cond = eddy.decay_integrals(t_zero, i_off, rel.r_off, rel.v_off, e)
+    w_eddy = np.asarray(eddy.release_eddy_energy(i_off, rel.r_off, rel.v_off, e), float) + 0.0 * step
+    w_fw = np.asarray(freewheel_element_energy(drive, rel, q, s), float) + 0.0 * step
+    outlasts = np.maximum(np.asarray(res.release_time, float) - np.asarray(res.release_zero_time, float), 0.0)
+    power = np.asarray(res.hold.eddy_energy / res.hold.period, float)
+    k_s, k_r, k_h = worst(step), worst(w_eddy), worst(power)
+    tau = float(coil.inductance / r_e)
+    return EddyResult(
+        resistance_ohm=r_e, time_constant_s=tau,
+        given="coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance",
+        switch_on_step_a=float(step[k_s]), step_corner=grid.label(k_s),
+        block_current_a=float(np.max(block)),
+        release_eddy_energy_j=float(w_eddy[k_r]), release_freewheel_energy_j=float(w_fw[k_r]),
+        release_corner=grid.label(k_r), flux_outlasts_s=float(np.max(outlasts)),
+        hold_eddy_power_w=float(power[k_h]), hold_corner=grid.label(k_h))

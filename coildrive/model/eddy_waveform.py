@@ -1,0 +1,155 @@
+"""One actuation of a coil with an eddy resistance as a time series (``simulate``, the
+emulator, synthetic captures).
+
+The schedule of :mod:`coildrive.model.waveform` -- full on from zero for the peak, whole
+PWM periods of hold ending at the top of the last on-time, then the release -- with the
+magnetising current as the state (:mod:`coildrive.model.eddy`). At one operating point
+the three segment kinds are tabulated once from their exact segment times
+(:class:`_Table`): on (the Thevenin pair of the on-loop), off while the freewheel
+conducts (down to ``V_off / R_e``) and the flux's decay through ``R_e`` alone; a current
+after a time is read back from the table. The terminal current steps at every switch
+edge, so each edge has two samples at the same time (before and after). The release is
+drawn until the magnetising current has fallen to 1 % of where it started.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..config import Drive
+from . import eddy
+from .circuit import Loop
+from .flux_waveform import stitch_periods
+
+#: Currents tabulated per segment kind.
+GRID = 20_000
+#: The release is drawn until the magnetising current is this fraction of its start.
+TAIL_FRACTION = 0.01
+
+
+class _Table:
+    """Exact times along one segment kind (``dpsi/dt = v - r i_m``) at the tabulated
+    magnetising ``currents`` (A, in the direction of travel)."""
+
+    def __init__(self, mag, v: float, r: float, currents: np.ndarray):
+        self.i = currents
+        dt = eddy.branch_time(mag, currents[:-1], currents[1:], v, r)
+        self.t = np.concatenate([[0.0], np.cumsum(dt)])
+        self.up = currents[-1] > currents[0]
+
+    def time_at(self, i):
+        """s from the table's start to the current ``i`` A."""
+        if self.up:
+            return np.interp(i, self.i, self.t)
+        return np.interp(i, self.i[::-1], self.t[::-1])
+
+    def current(self, i0, dt):
+        """Current A ``dt`` s after ``i0`` A."""
+        return np.interp(self.time_at(i0) + dt, self.t, self.i)
+
+
+class _Point:
+    """The three tables of one operating point and the terminal current's rules."""
+
+    def __init__(self, lp: Loop, top: float):
+        e = lp.inductance[...]
+        self.re = float(np.ravel(e.resistance)[0])
+        mag = e.magnetising
+        self.mag = mag.with_scale(float(np.ravel(mag.scale)[0])) if hasattr(mag, "with_scale") \
+            else float(np.ravel(mag)[0])
+        self.v, self.r_on, self.r_off, self.v_off = (float(np.ravel(x)[0]) for x in
+                                                     (lp.v_on, lp.r_on, lp.r_off, lp.v_off))
+        von, ron = (float(x) for x in eddy.thevenin(self.v, self.r_on, self.re))
+        voff, roff = (float(x) for x in eddy.thevenin(-self.v_off, self.r_off, self.re))
+        a = von / ron
+        near = a * (1.0 - np.logspace(-3, -13, 400))
+        self.on = _Table(self.mag, von, ron, np.concatenate([np.linspace(0.0, near[0], GRID,
+                                                                         endpoint=False), near]))
+        self.ib = float(eddy.block_current(self.v_off, self.re))
+        hi = max(top, a) * 1.001
+        self.off = _Table(self.mag, voff, roff, np.linspace(hi, self.ib, GRID + 1)) if hi > self.ib else None
+        self.tail = _Table(self.mag, 0.0, self.re, self.ib * np.logspace(0, -9, GRID + 1)) \
+            if self.ib > 0 else None
+
+    def conduction(self, i0):
+        """s the freewheel conducts from ``i0`` A."""
+        if self.off is None:
+            return np.zeros_like(np.asarray(i0, float))
+        return np.where(i0 > self.ib, self.off.t[-1] - self.off.time_at(i0), 0.0)
+
+    def decay(self, i0, t):
+        """Magnetising current A ``t`` s into a freewheel from ``i0`` A."""
+        i0, t = np.broadcast_arrays(np.asarray(i0, float), np.asarray(t, float))
+        tb = self.conduction(i0)
+        first = self.off.current(i0, np.minimum(t, tb)) if self.off is not None else i0
+        if self.tail is None:
+            return first
+        late = t > tb
+        rest = self.tail.current(np.minimum(i0, self.ib), np.where(late, t - tb, 0.0))
+        return np.where(late, rest, first)
+
+    def on_terminal(self, i_m):
+        return eddy.terminal(i_m, self.v, self.r_on, self.re)
+
+    def off_terminal(self, i_m):
+        return np.maximum(eddy.terminal(i_m, -self.v_off, self.r_off, self.re), 0.0)
+
+    def time_to(self, i0, i1):
+        """s of freewheeling from ``i0`` down to ``i1`` A of magnetising current."""
+        tb = float(self.conduction(i0))
+        if i1 >= self.ib or self.tail is None:
+            return float(self.off.time_at(i1) - self.off.time_at(i0)) if self.off is not None else 0.0
+        return tb + float(self.tail.time_at(i1) - self.tail.time_at(min(i0, self.ib)))
+
+
+def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: float,
+              hold_time: float, points: int):
+    """The sample pieces of one actuation: ``(time, terminal current, magnetising
+    current, switch_on, t_off, t_zero)`` (s, A, A, 0/1 arrays; the final turn-off and
+    the time the terminal current reaches zero, s) through the loop ``lp`` of one
+    operating point whose inductance is an :class:`~coildrive.model.eddy.EddyCoil`."""
+    e = lp.inductance[...]
+    v, r_on = (float(np.ravel(x)[0]) for x in (lp.v_on, lp.r_on))
+    peak_end = float(np.ravel(eddy.rise_current(peak_time, 0.0, v, r_on, e))[0])
+    pt = _Point(lp, peak_end)
+    big = 40 * points
+    tp = np.linspace(0.0, peak_time, big + 1)
+    mp = pt.on.current(0.0, tp)
+    mp[-1] = peak_end
+    ts, ms, cs, ons = [tp], [mp], [pt.on_terminal(mp)], [np.ones_like(tp)]
+    period = 1.0 / frequency
+    n = max(1, int(round(hold_time * frequency)))
+    t_on, t_off = duty * period, (1.0 - duty) * period
+    starts = np.empty(n)
+    i = peak_end
+    for k in range(n):
+        starts[k] = i
+        top = float(pt.on.current(i, t_on))
+        i = float(pt.decay(top, t_off)) if k < n - 1 else top
+    frac = np.linspace(0.0, 1.0, points + 1)
+    t0 = peak_time + np.arange(n)[:, None] * period
+    on_t = np.broadcast_to(frac[None, :] * t_on, (n, points + 1))
+    on_m = pt.on.current(starts[:, None], on_t)
+    tops = on_m[:, -1]
+    tb = pt.conduction(tops)
+    extra = np.where(tb < t_off, tb, t_off * (points - 0.5) / points)
+    off_t = np.sort(np.concatenate([np.broadcast_to(frac[None, :] * t_off, (n, points + 1)),
+                                    extra[:, None]], axis=1), axis=1)
+    off_m = pt.decay(tops[:, None], off_t)
+    t_flat, on_flat, m_flat, c_flat = stitch_periods(
+        t0, t_on, on_t, off_t, (on_m, off_m), (pt.on_terminal(on_m), pt.off_terminal(off_m)))
+    ts.append(t_flat)
+    ms.append(m_flat)
+    cs.append(c_flat)
+    ons.append(on_flat)
+    t_cut = peak_time + (n - 1) * period + t_on
+    i_cut = float(tops[-1])
+    tz = float(pt.conduction(i_cut))
+    t_end = max(pt.time_to(i_cut, TAIL_FRACTION * i_cut), tz)
+    td = np.unique(np.concatenate([np.linspace(0.0, tz, big + 1), np.linspace(tz, t_end, big + 1)]))
+    md = pt.decay(i_cut, td)
+    ts.append(t_cut + td)
+    ms.append(md)
+    cs.append(pt.off_terminal(md))
+    ons.append(np.zeros_like(td))
+    return ts, cs, ms, ons, t_cut, t_cut + tz
