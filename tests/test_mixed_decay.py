@@ -5,6 +5,7 @@ refusals."""
 
 from __future__ import annotations
 
+import dataclasses
 import json
 
 import numpy as np
@@ -161,15 +162,47 @@ def test_a_fraction_above_one_is_refused(tmp_path):
     assert len(res.stderr.strip().splitlines()) == 1
 
 
-def test_mixed_decay_needs_a_full_bridge_and_tune_refuses_it(tmp_path):
+def test_mixed_decay_needs_a_full_bridge_and_live_tuning_refuses_it(tmp_path):
     demo = tmp_path / "d.toml"
     demo.write_text((EXAMPLES / "demo-valve.toml").read_text().replace(
         "[hold]\n", "[hold]\nfast_fraction = 0.2\n", 1))
     res = CliRunner().invoke(app, ["design", str(demo)])
     assert res.exit_code == 2 and "hold.fast_fraction" in res.stderr and "full bridge" in res.stderr
-    res = CliRunner().invoke(app, ["tune", str(_variant(tmp_path, 0.2))])
-    assert res.exit_code == 2 and "hold.fast_fraction" in res.stderr
+    res = CliRunner().invoke(app, ["tune", str(_variant(tmp_path, 0.2)), "--port", str(tmp_path / "no-port")])
+    assert res.exit_code == 2 and "hold.fast_fraction" in res.stderr and "offline" in res.stderr
     assert len(res.stderr.strip().splitlines()) == 1
+
+
+def test_the_tuned_mixed_hold_pasted_designs_to_the_printed_figures(tmp_path):
+    """tune's sweep evaluates the hold with its fast part; the [hold] it prints keeps
+    ``fast_fraction``, and pasted into the drive file designs (coildrive.design, the orbit
+    tests/test_reference_ngspice_bridge.py checks against ngspice) to the candidate's
+    timer counts and figures."""
+    from test_tune import _paste_hold
+    from coildrive.tune.sweep import TuneOptions, tune
+
+    path = _variant(tmp_path, 0.3)
+    # (a band of frequencies around the file's 20 kHz keeps the test short)
+    r = tune(load_drive(path), TuneOptions(min_frequency=15e3, max_frequency=25e3, levels=2, level_step=0.1))
+    rec = r.recommendation
+    section = r.hold_section()
+    assert rec is not None and "\nfast_fraction = 0.3  #" in section, section
+    pasted_path = tmp_path / "pasted.toml"
+    pasted_path.write_text(_paste_hold(path.read_text(), section))
+    pasted = load_drive(pasted_path)
+    assert pasted.hold.fast_fraction == 0.3
+    d = design(pasted)
+    assert (d.hold.frequency_hz, d.timer.period_ticks, d.timer.compare_ticks) == (
+        rec.frequency_hz, rec.period_ticks, rec.compare_ticks)
+    for got, want in ((rec.min_mean_current_a, d.hold.min_mean_current_a),
+                      (rec.max_mean_current_a, d.hold.max_mean_current_a),
+                      (rec.ripple_a, d.hold.ripple_a), (rec.coil_temp_c, d.hold.coil_temp_c),
+                      (rec.freewheel_power_w, d.hold.freewheel_power_w),
+                      (rec.switch_power_w, d.hold.switch_power_w)):
+        assert got == pytest.approx(want, rel=1e-9), (got, want)
+    # the fraction matters: the same hold in slow decay alone needs fewer compare counts
+    slow = design(dataclasses.replace(pasted, hold=dataclasses.replace(pasted.hold, fast_fraction=0.0)))
+    assert slow.timer.compare_ticks < rec.compare_ticks, (slow.timer.compare_ticks, rec.compare_ticks)
 
 
 def test_simulated_switch_columns_follow_the_three_segments(tmp_path):
