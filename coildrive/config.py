@@ -1603,4 +1603,4 @@ def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_
     if latch is not None:
         _check_latch(source, switch, freewheel, latch)
     return Drive(path.stem, coil, supply, ambient, thermal, pull_in, hold, release, brd, switch,
-                 freewheel, armature, source, duty, latch)
+                 freewheel, armature, source, duty, latch=latch)
