@@ -174,12 +174,14 @@ def test_pump_up_into_the_bulk_capacitance_matches_ngspice(tmp_path, capacitance
     assert float(pu.zero_time) < t_fixed
 
 
-def test_simulated_switch_columns_drive_the_element_level_bridge(tmp_path):
+@pytest.mark.parametrize("fraction", [0.0, 0.3], ids=["slow-hold", "mixed-hold"])
+def test_simulated_switch_columns_drive_the_element_level_bridge(tmp_path, fraction):
     """`coildrive simulate`'s per-switch columns of a bridge, played into the gates of the
     element-level netlist (each switch's edges; a switch that turns on waits STAGGER after
-    the one that turns off, a dead time in which a body diode carries the current): the
-    current at the end of the peak and at the final turn-off, the time to zero, and the
-    coil voltage in a slow and in a fast decay, against the CSV (ngspice, 1 %)."""
+    the one that turns off, a dead time in which a body diode carries the current; Q4
+    opens STAGGER after Q1): the current at the end of the peak and at the final
+    turn-off, the time to zero, and the coil voltage in a slow and in a fast decay (with
+    mixed decay also in a fast part of the hold), against the CSV (ngspice, 1 %)."""
     import numpy as np
 
     from conftest import BOARDS, EXAMPLES, run_cli
@@ -193,6 +195,8 @@ def test_simulated_switch_columns_drive_the_element_level_bridge(tmp_path):
                      ('inductance = "70 mH"', f'inductance = "{L_COIL * 1e3:g} mH"')):
         assert old in text
         text = text.replace(old, new)
+    if fraction:
+        text = text.replace('frequency = "20 kHz"\n', f'frequency = "20 kHz"\nfast_fraction = {fraction}\n')
     drive.write_text(text)
     csv = tmp_path / "act.csv"
     r = run_cli("simulate", str(drive), "--supply", f"{V_SUP:g}", "--coil-temp", "20", "--hold-time", "1 ms",
@@ -200,10 +204,10 @@ def test_simulated_switch_columns_drive_the_element_level_bridge(tmp_path):
     assert r.returncode == 0, r.stderr
     w = np.genfromtxt(csv, delimiter=",", names=True)
     t, on = w["time_s"], w["switch_on"]
-    change = np.nonzero(np.diff(on))[0]
-    # an edge sits on the sample of the on-time it ends or starts
-    edges = [float(t[k] if on[k] == 1 else t[k + 1]) for k in change]
     names = ("high_a", "low_a", "high_b", "low_b")
+    change = np.nonzero(np.any([np.diff(w[f"{n}_on"]) for n in names], axis=0))[0]
+    # an edge sits on the last sample of the part it ends, but on the first of an on-time
+    edges = [float(t[k + 1] if on[k + 1] == 1 else t[k]) for k in change]
     gates = {}
     for q, name in enumerate(names, start=1):
         col = w[f"{name}_on"]
@@ -213,7 +217,7 @@ def test_simulated_switch_columns_drive_the_element_level_bridge(tmp_path):
             new = int(col[k + 1])
             if new != level:
                 # off at the edge (Q4 one STAGGER later at the release), on one STAGGER later
-                at = edge + (STAGGER if new == 1 or (name == "low_b" and k == change[-1]) else 0.0)
+                at = edge + (STAGGER if new == 1 or name == "low_b" else 0.0)
                 points += [(at, level), (at + EDGE, new)]
                 level = new
         gates[q] = "PWL(" + " ".join(f"{a!r} {b}" for a, b in points) + ")"
@@ -228,6 +232,9 @@ def test_simulated_switch_columns_drive_the_element_level_bridge(tmp_path):
                 "meas tran tzero WHEN i(VM)=1e-6 FALL=1",
                 f"meas tran vslow FIND vcoil AT={t_slow!r}", f"meas tran vfast FIND vcoil AT={t_fast!r}",
                 f"meas tran vq1fast FIND vq1 AT={t_fast!r}"]
+    t_hold_fast = 0.5 * (edges[-4] + edges[-3])   # with mixed decay: the last fast part of the hold
+    if fraction:
+        measures.append(f"meas tran vhfast FIND vcoil AT={t_hold_fast!r}")
     res = run(tmp_path, "bridge-phases", _netlist("bridge-phases", gates, t_off + 1.2 * t_zero, step,
                                                   measures, inline=True))
 
@@ -243,6 +250,9 @@ def test_simulated_switch_columns_drive_the_element_level_bridge(tmp_path):
     assert res["vslow"] == pytest.approx(model("coil_voltage_v", t_slow), rel=0.01)
     assert res["vfast"] == pytest.approx(model("coil_voltage_v", t_fast), rel=0.01)
     assert res["vq1fast"] == pytest.approx(model("switch_voltage_v", t_fast), rel=0.01)
+    if fraction:
+        assert w["low_a_on"][change[-4] + 1] == 0 and w["low_a_on"][change[-3] + 1] == 1
+        assert res["vhfast"] == pytest.approx(model("coil_voltage_v", t_hold_fast), rel=0.01)
 def _mixed_gates(t_on, t_fast, period):
     """Gates of a mixed-decay hold from t = 0: Q1 + Q4 on for ``t_on``, all off for ``t_fast``
     (Q4 opens ``STAGGER`` after Q1), then Q2 + Q4 on (Q4 closes ``STAGGER`` after Q2) until

@@ -25,9 +25,11 @@ def mixed_hold_samples(t_start: float, i0: float, v: float, r_on: float, r_off: 
     least one), the last cut at the end of its on-time (the turn-off, at the top of the
     ripple).
 
-    Returns ``(time, current, switch_on, fast, t_off, i_off)``: the samples after
-    ``t_start`` (s, A, 0/1, and 1 where the current flows in the fast path), the final
-    turn-off time s and current A.
+    Returns ``(time, current, switch_on, fast, t_off, i_off, fast_part)``: the samples
+    after ``t_start`` (s, A, 0/1, and 1 where the current flows in the fast path), the
+    final turn-off time s and current A, and 1 on the samples of each fast part (all four
+    switches open: from just after the on-time's end up to and including the sample at
+    the fast part's end; the slow part follows).
     """
     r_f, v_f = float(mixed.r_fast), float(mixed.v_fast)
     period = 1.0 / frequency
@@ -65,8 +67,10 @@ def mixed_hold_samples(t_start: float, i0: float, v: float, r_on: float, r_off: 
                                axis=1)
     in_fast = np.concatenate([np.zeros_like(on_t), (fast_i > 0) | (fast_t <= t_zero[:, None]),
                               np.zeros_like(slow_t)], axis=1)
+    fast_part = np.concatenate([np.zeros_like(on_t), np.ones_like(fast_t), np.zeros_like(slow_t)],
+                               axis=1).astype(bool)
     keep = np.ones_like(period_t, dtype=bool)
     keep[-1, on_t.shape[1]:] = False
     t_offedge = t_start + (n - 1) * period + t_on
     return (period_t[keep][1:], period_i[keep][1:], period_on[keep][1:],
-            in_fast[keep][1:].astype(bool), t_offedge, float(tops[-1]))
+            in_fast[keep][1:].astype(bool), t_offedge, float(tops[-1]), fast_part[keep][1:])

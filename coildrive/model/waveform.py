@@ -175,10 +175,11 @@ def _mixed_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_tim
                      ons: list) -> Waveform:
     """:func:`actuation`'s hold and release with a full bridge's mixed decay
     (:mod:`coildrive.model.mixed_waveform`): the switches see the fast path's voltage
-    while the current flows into the bus."""
+    while the current flows into the bus; the per-switch columns and the coil voltage
+    follow the three segments (on: Q1 + Q4, fast: all four open, slow: Q2 + Q4)."""
     from .mixed_waveform import mixed_hold_samples
 
-    t_hold, i_hold, on_hold, fast_hold, t_off, i_off = mixed_hold_samples(
+    t_hold, i_hold, on_hold, fast_hold, t_off, i_off, fast_part = mixed_hold_samples(
         peak_time, i0, float(lp.v_on), float(lp.r_on), float(lp.r_off), float(lp.inductance),
         duty, frequency, hold_time, points, lp.mixed)
     n_peak = sum(len(t) for t in ts)
@@ -190,8 +191,12 @@ def _mixed_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_tim
                          label, release_lp=fast)
     mask = np.zeros(len(w.time), bool)
     mask[n_peak:n_peak + len(t_hold)] = fast_hold
-    v_fast = fast.switch_voltage(drive, w.current)
-    return dataclasses.replace(w, switch_voltage=np.where(mask, v_fast, w.switch_voltage))
+    v_sw = np.where(mask, fast.switch_voltage(drive, w.current), w.switch_voltage)
+    all_open = np.zeros(len(w.time), bool)
+    all_open[n_peak:n_peak + len(t_hold)] = fast_part
+    v_sw, _, extra = _bridge_columns(drive, supply, w.time, w.current, w.switch_on, v_sw, t_off,
+                                     all_open=all_open)
+    return dataclasses.replace(w, switch_voltage=v_sw, **extra)
 
 
 def one_point(inductance):
@@ -298,18 +303,21 @@ def release_waveform(drive: Drive, lp, supply: float, ts: list, cs: list, ons: l
                     **node_columns(drive, supply, current, on, v_sw))
 
 
-def _bridge_columns(drive: Drive, supply: float, time, current, on, v_fast, t_off: float):
+def _bridge_columns(drive: Drive, supply: float, time, current, on, v_fast, t_off: float,
+                    all_open=None):
     """A full bridge's switch voltage (the highest of its four, V), sensed current (A), and
     as keyword arguments its switches' states and the coil voltage (V), per sample: the
     on-times drive through Q1 + Q4 (Q2 and Q3 hold off ``V_bus`` less the drops across
     Q1 and a common-return sense resistor), the hold's off-times recirculate through Q2
     + Q4 (Q1 holds off ``V_bus + R_sw i``), after the final turn-off ``t_off`` s all four
     are open (``v_fast``: the fast decay's switch voltage, :func:`_switch_and_sense` of
-    the release loop)."""
+    the release loop). ``all_open`` (bool per sample, mixed decay) marks the hold's fast
+    parts, where all four are open as in the release."""
     sense = drive.board.sense
     r_sw = drive.switch.on_resistance
     r_return = sense.resistance if sense.position == "switch" else 0.0
-    phase = np.where(on == 1, 1, np.where(time > t_off, -1, 0))
+    released = time > t_off if all_open is None else (time > t_off) | all_open
+    phase = np.where(on == 1, 1, np.where(released, -1, 0))
     v_sw = np.where(phase == 1, supply - current * (r_sw + r_return),
                     np.where(phase == 0, supply + current * r_sw, v_fast))
     coil = bridge.coil_voltage(supply, current, phase, r_sw, sense.resistance, sense.position == "coil",

@@ -252,7 +252,7 @@ def settle_voltage_mode(drive: Drive, supply, ambient, r_factor, l_factor, duty,
         lp = loop(drive, supply, np.where(np.isfinite(temp), temp, drive.thermal.max_coil_temp),
                   r_factor, l_factor)
         return temp, lp, pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
-                                          lp.inductance)
+                                          lp.inductance, mixed=lp.mixed)
     r_th = drive.thermal.resistance
     a = COPPER_ALPHA
     dr_dt = coil_r20(drive, r_factor) * a
@@ -263,7 +263,8 @@ def settle_voltage_mode(drive: Drive, supply, ambient, r_factor, l_factor, duty,
     prev_t = prev_g = None
     for _ in range(max_iter if r_th > 0 else 1):
         lp = loop(drive, supply, np.where(bad, drive.thermal.max_coil_temp, temp), r_factor, l_factor)
-        ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
+        ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance,
+                              mixed=lp.mixed)
         if r_th == 0:
             done[:] = True
             break
@@ -287,7 +288,8 @@ def settle_voltage_mode(drive: Drive, supply, ambient, r_factor, l_factor, duty,
     if np.any(~np.isfinite(temp)):
         lp = loop(drive, supply, np.where(np.isfinite(temp), temp, drive.thermal.max_coil_temp),
                   r_factor, l_factor)
-        ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
+        ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance,
+                              mixed=lp.mixed)
     return temp, lp, ss
 
 
@@ -435,9 +437,9 @@ def required_duty_points(drive: Drive, grid: CornerGrid, corners: np.ndarray, ta
             ok = np.isfinite(temp)
             lp = loop(drive, sup[sl], np.where(ok, temp, drive.thermal.max_coil_temp), rf[sl], lf[sl])
             duty = duty_for_mean(tgt[sl], f[sl], lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance,
-                                 start=duty)
+                                 start=duty, mixed=lp.mixed)
             ss = pwm_steady_state(np.nan_to_num(duty), f[sl], lp.v_on, lp.r_on, lp.r_off, lp.v_off,
-                                  lp.inductance)
+                                  lp.inductance, mixed=lp.mixed)
             new = settled(drive, amb[sl], rf[sl], ss.rms)
             moved = np.abs(new - temp)
             temp = new
@@ -617,6 +619,8 @@ def hold_toml(drive: Drive, c: Candidate) -> str:
         lines.append(f'mode = "{h.mode}"')
     else:
         lines.append(f'regulation = "{h.regulation}"')
+    if h.fast_fraction > 0:   # a full bridge's mixed decay: the sweep evaluated the hold with it
+        lines.append(f"fast_fraction = {_exact(h.fast_fraction)}  # of each off-time in fast decay")
     if h.frequency_tolerance != 0.01:
         lines.append(f"frequency_tolerance = {h.frequency_tolerance!r}"
                      + ("   # picks this exact prescaler and period" if h.frequency_tolerance == 1e-9 else ""))
@@ -624,13 +628,14 @@ def hold_toml(drive: Drive, c: Candidate) -> str:
 
 
 # --------------------------------------------------------------------------- the sweep
-def check_tunable(drive: Drive, who: str, sweep: bool = False) -> None:
+def check_tunable(drive: Drive, who: str, live: bool = False) -> None:
     """Raise :class:`InputError` (naming the key) for a hold that tuning cannot step: a
-    current-mode hold, a closed-loop hold, a mixed-decay hold, and for live tuning (``sweep``
-    false) a flux-linkage curve. ``who``: the start of the message (``"coildrive tune sweeps"``,
-    ``"live tuning steps"``); the offline sweep and live tuning share these refusals.
-    The offline sweep takes a curve: every figure is the curve's exact orbit
-    (:func:`coildrive.model.flux.orbit`), as in the design."""
+    current-mode hold, a closed-loop hold, an eddy-current term, and for live tuning
+    (``live``) a flux-linkage curve and a mixed-decay hold. ``who``: the start of the message
+    (``"coildrive tune sweeps"``, ``"live tuning steps"``); the offline sweep and live tuning
+    share these refusals. The offline sweep takes a curve (every figure is the curve's exact
+    orbit, :func:`coildrive.model.flux.orbit`, as in the design) and a mixed-decay hold (its
+    exact orbit; the live model at the bench point has no fast part yet)."""
     if drive.hold.mode == "latch":
         raise InputError(drive.source, "hold.mode", f"{who} the PWM of a hold; a latching coil has "
                          "none: coildrive design sizes its pulses")
@@ -641,13 +646,13 @@ def check_tunable(drive: Drive, who: str, sweep: bool = False) -> None:
         raise InputError(drive.source, "hold.regulation", f"{who} a fixed or supply-table compare; "
                          "a closed-loop hold sets its own compare every PWM period and holds its "
                          "set-point at every corner: set hold.current and run coildrive design")
-    if drive.coil.flux_current and not sweep:
+    if drive.coil.flux_current and live:
         raise InputError(drive.source, "coil.flux_current", "live tuning does not support a "
                          "flux-linkage curve yet: tune offline (coildrive tune without --port), "
                          "or live with coil.inductance at the hold current's incremental value")
-    if drive.hold.fast_fraction > 0:
-        raise InputError(drive.source, "hold.fast_fraction", "tuning does not step a mixed-decay "
-                         "hold yet: tune with fast_fraction = 0, then design with the fraction")
+    if live and drive.hold.fast_fraction > 0:
+        raise InputError(drive.source, "hold.fast_fraction", f"{who} a slow-decay hold only; tune "
+                         "a mixed-decay hold offline (coildrive tune without --port)")
     if drive.coil.eddy_resistance:
         key = "coil.eddy_time_constant" if drive.coil.eddy_time_constant else "coil.eddy_resistance"
         raise InputError(drive.source, key, "tuning does not support an eddy-current term yet: "
@@ -661,7 +666,7 @@ def tune(drive: Drive, options: TuneOptions | None = None) -> TuneResult:
     """
     options = options or TuneOptions()
     options.check()
-    check_tunable(drive, "coildrive tune sweeps", sweep=True)
+    check_tunable(drive, "coildrive tune sweeps")
     t0 = time.perf_counter()
     grid = corner_grid(drive)
     f_lo, f_hi, f_src = frequency_range(drive, options)
