@@ -452,3 +452,27 @@ def test_plot_arrays_follow_the_result(tmp_path):
         for o, cur in zip(want, c["channel_a"]):
             assert np.all(cur[c["time_s"] < o] == 0) and cur[c["time_s"] > o + 1e-4].min() > 0
     assert rail["staggered"]["total_a"].max() <= result.current_limit_a < rail["together"]["total_a"].max()
+
+
+def test_emulated_channel_runs_the_shared_timer(doc):
+    """emulate SYSTEM.toml --channel: the device's hold PWM frequency is the shared timer's
+    (``clock / (prescaler x period)`` from the system's JSON, the board's 72 MHz clock),
+    and a hold-frequency command cannot move one channel off it (the other channels share
+    the timer): another frequency is out of range, the shared one in force is the answer."""
+    from coildrive.bench.device import VirtualDevice
+    from coildrive.bench.messages import Command, Opcode, ReplyStatus
+    from coildrive.cli.system_cmd import channel_drive
+
+    (timer,) = doc["timers"]
+    shared = 72e6 / (timer["prescaler"] * timer["period_ticks"])
+    assert shared == pytest.approx(timer["frequency_hz"], rel=1e-12)
+    for name in ("disp1", "purge2"):
+        dev = VirtualDevice(channel_drive(SYSTEM, None, name))
+        assert (dev.settings.prescaler, dev.settings.period_ticks) == (timer["prescaler"], timer["period_ticks"])
+        assert dev.frequency == pytest.approx(shared, rel=1e-12)
+        assert dev._execute(Command(Opcode.SET_HOLD_FREQUENCY, 20000), 0.0) == (ReplyStatus.OUT_OF_RANGE, round(shared))
+        assert dev._execute(Command(Opcode.SET_HOLD_FREQUENCY, round(shared)), 0.0) == (ReplyStatus.OK, round(shared))
+        assert dev.frequency == pytest.approx(shared, rel=1e-12)
+    # a drive file alone still follows the command
+    alone = VirtualDevice(load_drive(EXAMPLES / "manifold" / "purge-valve-24v.toml"))
+    assert alone._execute(Command(Opcode.SET_HOLD_FREQUENCY, 20000), 0.0) == (ReplyStatus.OK, 20000)
