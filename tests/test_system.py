@@ -9,6 +9,10 @@ Outside references, named beside each check:
   during its peak, then the hold's bound), swept at 1e5 points with numpy;
 * ngspice (batch mode, ``ngspice -b``): several coils switched onto one bus behind the
   source resistance and the bulk capacitor, ``.meas tran MIN v(bus)``;
+* the timer's own definition for ``simulate SYSTEM.toml``: a PWM output on from every
+  period start ``m / f`` to ``m / f + compare / (period counts x f)``, with ``f``, the
+  period and the compare taken from the design's JSON; and the rail bound written afresh
+  (above) on the simulated CSV's time grid;
 * the C compilers (gcc, arm-none-eabi-gcc, avr-gcc) on the board's header with
   ``-Wall -Wextra -Werror -pedantic``.
 """
@@ -476,3 +480,11 @@ def test_emulated_channel_runs_the_shared_timer(doc):
     # a drive file alone still follows the command
     alone = VirtualDevice(load_drive(EXAMPLES / "manifold" / "purge-valve-24v.toml"))
     assert alone._execute(Command(Opcode.SET_HOLD_FREQUENCY, 20000), 0.0) == (ReplyStatus.OK, 20000)
+
+
+def test_simulate_system_too_long_is_refused(tmp_path):
+    csv = tmp_path / "rail.csv"
+    r = CliRunner().invoke(app, ["simulate", str(SYSTEM), "--supply", "24", "--coil-temp", "20",
+                                 "--hold-time", "10", "--csv", str(csv)])
+    assert r.exit_code == 2 and "--hold-time" in r.stderr and len(r.stderr.strip().splitlines()) == 1
+    assert not csv.exists()

@@ -90,7 +90,7 @@ def run_system_simulate(path: Path, board: Optional[str], supply: float, coil_te
     run = simulate_system(result, supply, coil_temp, hold_time, points, r_factor, l_factor)
     write_atomic(csv, run.to_csv())
     k = int(run.rail.argmax())
-    f = 1.0 / run.periods[0]
+    timers = ", ".join(f"{t['frequency_hz']:.6g} Hz" for t in result.timers) or "each channel's own"
     status(f"wrote {csv}: {len(run.time)} samples, {len(run.names)} channels {result.stagger_ticks} "
-           f"ticks apart, holds on the shared timer's period starts ({f:.6g} Hz); rail current up to "
+           f"ticks apart, holds on the timers' period starts ({timers}); rail current up to "
            f"{run.rail[k]:.4g} A at {run.time[k] * 1e3:.4g} ms")

@@ -54,6 +54,16 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
     """Every channel of ``result`` at bus ``supply`` V, coils at ``coil_temp`` degC and
     the tolerance factors (module docstring); ``hold_time`` s of hold each, ``points``
     samples per PWM segment (peak and release 40x)."""
+    from ..errors import InputError
+    from .core import MAX_WAVEFORM_SAMPLES
+
+    f_max = max(c.design.hold.frequency_hz for c in result.channels)
+    samples = len(result.channels) * (2.0 * points * hold_time * f_max + 80.0 * points) * 2
+    if not samples <= MAX_WAVEFORM_SAMPLES:
+        raise InputError("--hold-time", "", f"{hold_time:g} s of hold on {len(result.channels)} channels "
+                         f"at up to {f_max:.6g} Hz with {points} points a segment is about "
+                         f"{samples:,.0f} samples, more than the {MAX_WAVEFORM_SAMPLES:,} one run may "
+                         "have: shorten --hold-time or lower --points")
     runs, periods, duties = [], [], []
     for c in result.channels:
         d = c.design
