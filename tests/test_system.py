@@ -488,3 +488,27 @@ def test_simulate_system_too_long_is_refused(tmp_path):
                                  "--hold-time", "10", "--csv", str(csv)])
     assert r.exit_code == 2 and "--hold-time" in r.stderr and len(r.stderr.strip().splitlines()) == 1
     assert not csv.exists()
+
+
+def test_simulated_rail_under_the_bound_at_every_step(doc):
+    """The staggered manifold simulated (the library behind ``simulate SYSTEM.toml``, 16
+    points a PWM segment and every switching moment) at the supplies where the firmware's
+    tables are at their most -- just below every peak-table step, and 20 and 28 V -- with
+    the cold coil at both tolerance corners: never above the design's rail bound written
+    afresh at that supply (:func:`_rail`), nor above the limit."""
+    from coildrive.design.system import design_system
+    from coildrive.design.system_sim import simulate_system
+    from coildrive.system_file import load_system
+
+    result = design_system(load_system(SYSTEM))
+    lsb = 3.3 / 4096 * 11
+    codes = doc["channels"][0]["design"]["peak_table"]["adc_codes"][1:]
+    worst = 0.0
+    for v in sorted({20.0, 28.0, *(c * lsb - 1e-6 for c in codes[::3])}):
+        for r_f, l_f in ((0.93, 0.85), (1.07, 1.15)):
+            run = simulate_system(result, v, 0.0, 0.012, 16, r_f, l_f)   # all held at the last peak
+            bound = _rail(run.time, doc["channels"], v)
+            assert np.all(run.rail <= bound * (1 + 1e-12)), (v, r_f, (run.rail - bound).max())
+            worst = max(worst, float(run.rail.max()))
+    assert worst <= doc["current_limit_a"]
+    print(f"simulated rail worst {worst:.4f} A, limit {doc['current_limit_a']:.4g} A")
