@@ -478,6 +478,11 @@ class VirtualDevice(LineOutput):
             self.settings = Settings(s.peak_ticks, s.prescaler, s.period_ticks, compare)
             return ReplyStatus.OK, self._duty_code()
         if op == Opcode.SET_HOLD_FREQUENCY:
+            if self.drive.shared_timer is not None:
+                # a channel of a system file: its board's other channels share the timer, so
+                # one channel cannot move it; the frequency in force is the answer
+                now_hz = int(round(self.frequency))
+                return (ReplyStatus.OK if arg == now_hz else ReplyStatus.OUT_OF_RANGE), now_hz
             low, high = self.frequency_range()
             if not low <= arg <= high:
                 return ReplyStatus.OUT_OF_RANGE, int(round(self.frequency))

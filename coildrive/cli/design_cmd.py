@@ -169,11 +169,11 @@ def simulate_command(
         raise InputError("--points", "", f"{points} is below 2, expected at least 2 samples per segment")
     from ..system_file import is_system_file
     if is_system_file(drive):
-        if plot is not None or r_factor != 1.0 or l_factor != 1.0:
-            raise InputError("--plot" if plot is not None else "--r-factor", "", "not used with a "
-                             "system file (each channel runs at the file's nominal coil)")
+        if plot is not None:
+            raise InputError("--plot", "", "not used with a system file (the CSV has every "
+                             "channel and the rail)")
         from .system_cmd import run_system_simulate
-        return run_system_simulate(drive, board, v, t, h, points, csv)
+        return run_system_simulate(drive, board, v, t, h, points, csv, r_factor, l_factor)
     drv = load_drive(drive, board)
     if drv.latch is not None:
         _simulate_latch(drv, v, t, csv, r_factor, l_factor, points, plot)

@@ -90,6 +90,10 @@ def emulate_command(
     if is_system_file(drive):
         from .system_cmd import channel_drive
         d = design(channel_drive(drive, board, channel))
+        if d.drive.shared_timer is not None:
+            status(f"channel {channel}: hold PWM on the board's shared timer, prescaler "
+                   f"{d.timer.prescaler}, period {d.timer.period_ticks} counts, "
+                   f"{d.timer.frequency_hz:.6g} Hz (a hold-frequency command gets it back, unchanged)")
     else:
         if channel is not None:
             raise InputError("--channel", "", f"{drive} is a drive file, not a system file: leave --channel out")

@@ -77,31 +77,20 @@ def channel_drive(path: Path, board: Optional[str], name: Optional[str]):
 
 
 def run_system_simulate(path: Path, board: Optional[str], supply: float, coil_temp: float,
-                        hold_time: float, points: int, csv: Path) -> None:
-    """Every channel's actuation at one operating point, each started at its offset: the
-    CSV has ``time_s``, ``current_a`` (the rail's current: each switch's current summed)
-    and a ``<name>_current_a`` coil current column per channel."""
-    import numpy as np
-
-    from ..design import actuation
+                        hold_time: float, points: int, csv: Path, r_factor: float = 1.0,
+                        l_factor: float = 1.0) -> None:
+    """Every channel's actuation at one operating point as the firmware runs it on the
+    shared timer (:mod:`coildrive.design.system_sim`): the CSV has ``time_s``,
+    ``current_a`` (the rail's current: each switch's current summed), a
+    ``<name>_current_a`` coil current column and a ``<name>_on`` switch column per channel."""
     from ..design.system import design_system
+    from ..design.system_sim import simulate_system
 
     result = design_system(_load(path, board))
-    waves = []
-    for c in result.channels:
-        w = actuation(c.design, supply, coil_temp, hold_time, points=points)
-        waves.append((c, w.time + c.offset_s, w.current, w.switch_on))
-    t = np.unique(np.concatenate([w[1] for w in waves]))
-    cols, total = [], np.zeros_like(t)
-    for c, tw, i, on in waves:
-        cur = np.interp(t, tw, i, left=0.0, right=0.0)
-        k = np.searchsorted(tw, t, side="right") - 1
-        sw = np.where(k >= 0, on[np.clip(k, 0, None)], 0)
-        total += cur * sw
-        cols.append(cur)
-    names = ",".join(f"{c.name}_current_a" for c in result.channels)
-    rows = np.column_stack([t, total, *cols])
-    text = f"time_s,current_a,{names}\n" + "\n".join(",".join(f"{x:.9g}" for x in r) for r in rows) + "\n"
-    write_atomic(csv, text)
-    status(f"wrote {csv}: {len(t)} samples, {len(waves)} channels {result.stagger_ticks} ticks apart; "
-           f"rail current up to {total.max():.4g} A at {t[int(np.argmax(total))] * 1e3:.4g} ms")
+    run = simulate_system(result, supply, coil_temp, hold_time, points, r_factor, l_factor)
+    write_atomic(csv, run.to_csv())
+    k = int(run.rail.argmax())
+    timers = ", ".join(f"{t['frequency_hz']:.6g} Hz" for t in result.timers) or "each channel's own"
+    status(f"wrote {csv}: {len(run.time)} samples, {len(run.names)} channels {result.stagger_ticks} "
+           f"ticks apart, holds on the timers' period starts ({timers}); rail current up to "
+           f"{run.rail[k]:.4g} A at {run.time[k] * 1e3:.4g} ms")
