@@ -1111,11 +1111,6 @@ def _flux_curve_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel
     if switch.topology == "full_bridge":
         raise InputError(source, "switch.topology", "\"full_bridge\" with a flux-linkage curve "
                          "(coil.flux_current) is not supported yet")
-    if duty is not None or thermal.capacity > 0:
-        raise InputError(source, "duty" if duty is not None else "thermal.capacity",
-                         "an on/off cycle's coil temperature with a flux-linkage curve "
-                         "(coil.flux_current) is not supported yet: leave [duty] and "
-                         "thermal.capacity / time_constant out")
     if hold.mode == "current":
         raise InputError(source, "hold.mode", "\"current\" with a flux-linkage curve "
                          "(coil.flux_current) is not supported yet: use mode = \"voltage\"")

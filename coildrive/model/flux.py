@@ -114,6 +114,19 @@ class FluxCurve:
         c = self.coef[:, k]
         return (3 * c[0] * d + 2 * c[1]) * d + c[2]
 
+    def coenergy(self, i):
+        """Co-energy ``W' = int_0^i psi di`` in J at current ``i`` A (``i >= 0``): the
+        cubic pieces integrated exactly, the whole intervals below ``i`` summed."""
+        i = np.asarray(i, float)
+        c = self.coef
+        h = np.diff(self.base)
+        whole = np.concatenate([[0.0], np.cumsum(((c[0, :-1] * h / 4 + c[1, :-1] / 3) * h
+                                                 + c[2, :-1] / 2) * h * h + c[3, :-1] * h)])
+        k = self._index(i)
+        d = i - self.base[k]
+        ck = c[:, k]
+        return whole[k] + ((ck[0] * d / 4 + ck[1] / 3) * d + ck[2] / 2) * d * d + ck[3] * d
+
 
 @functools.lru_cache(maxsize=32)
 def curve(current: tuple[float, ...], flux: tuple[float, ...]) -> FluxCurve:
@@ -146,6 +159,20 @@ class FluxCoil:
     def small_signal(self):
         """Incremental inductance at zero current (what an LCR meter reads), H per point."""
         return self.scale * self.curve.incremental(0.0)
+
+
+def energy(coil: FluxCoil, i):
+    """Energy stored in the coil at ``i`` A, ``W = int_0^i i dpsi = i psi(i) - W'(i)`` (J
+    per point): what a decay to zero takes out of it (the rest of that decay's losses
+    come from the supply)."""
+    c = coil.curve
+    i = np.asarray(i, float)
+    return coil.scale * (i * c.psi(i) - c.coenergy(i))
+
+
+def linkage(coil: FluxCoil, i):
+    """Flux linkage ``psi(i)`` in Wb per point."""
+    return coil.scale * coil.curve.psi(i)
 
 
 def small_signal(inductance):
