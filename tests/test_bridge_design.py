@@ -59,8 +59,7 @@ def test_bundled_examples_a_bridge_refuses():
     refused = {(e.stem, b) for e in EXAMPLES.glob("*.toml") for b in REFUSING_BOARDS if not loads(e, b)}
     assert refused == {("demo-valve", "bridge-m32-fast"), ("wash-valve-split-24v", "bridge-m32-fast"),
                        ("locker-latch-12v", "bridge-m32-fast"),
-                       ("dosing-valve-closed-loop", "bridge-m32-fast"),   # its Zener
-                       ("saturating-valve-24v", "bridge-m32-fast")}       # a flux-linkage curve
+                       ("dosing-valve-closed-loop", "bridge-m32-fast")}   # its Zener
 
 
 def test_the_design_loop_is_the_bridge_of_the_ngspice_reference():

@@ -39,6 +39,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from . import flux
+from .flux import FluxCoil
 from .rl import decay_integrals, decay_time
 
 
@@ -95,19 +97,25 @@ class Release:
 
 
 def release(path: DecayPath, i0, i_drop, inductance) -> Release:
-    """The decay of ``i0`` A through ``path`` (closed form, :mod:`coildrive.model.rl`).
+    """The decay of ``i0`` A through ``path`` (closed form, :mod:`coildrive.model.rl`; a
+    :class:`~coildrive.model.flux.FluxCoil` ``inductance`` by its exact quadrature).
 
     A path with no opposing voltage (the slow one) never reaches zero in finite time:
     its ``zero_time`` is infinite, and its integrals are those of the whole exponential
-    tail (``charge = L i0 / r``, ``square = L i0^2 / (2 r)``)."""
+    tail (``charge = L i0 / r``, ``square = L i0^2 / (2 r)``; with a flux-linkage curve
+    ``psi(i0) / r`` and ``W(i0) / r``, ``W = int i dpsi`` the stored energy)."""
     i0 = np.asarray(i0, float)
     t_drop = decay_time(i_drop, i0, path.r_off, path.v_off, inductance)
     with np.errstate(divide="ignore", invalid="ignore"):
         t_zero = np.where(path.v_off > 0, decay_time(0.0, i0, path.r_off, path.v_off, inductance), np.inf)
     finite = np.where(np.isfinite(t_zero), t_zero, 0.0)
     q, s = decay_integrals(finite, i0, path.r_off, path.v_off, inductance)
-    tail_q = np.asarray(inductance, float) * i0 / path.r_off
-    tail_s = np.asarray(inductance, float) * i0**2 / (2.0 * path.r_off)
+    if isinstance(inductance, FluxCoil):   # int i dt = psi(i0) / r, int i^2 dt = W(i0) / r
+        tail_q = flux.linkage(inductance, i0) / path.r_off
+        tail_s = flux.energy(inductance, i0) / path.r_off
+    else:
+        tail_q = np.asarray(inductance, float) * i0 / path.r_off
+        tail_s = np.asarray(inductance, float) * i0**2 / (2.0 * path.r_off)
     q = np.where(np.isfinite(t_zero), q, tail_q)
     s = np.where(np.isfinite(t_zero), s, tail_s)
     return Release(t_drop, t_zero, q, path.v_return * q, path.r_off * s,
