@@ -1109,6 +1109,9 @@ def _flux_curve_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel
         raise InputError(source, "hold.regulation", "\"closed_loop\" with a flux-linkage curve "
                          "(coil.flux_current) is not supported yet: its gains come from a linear "
                          "coil; use \"fixed\" or \"supply_table\"")
+    if switch.topology == "full_bridge" and hold.fast_fraction > 0:
+        raise InputError(source, "hold.fast_fraction", "mixed decay with a flux-linkage curve "
+                         "(coil.flux_current) is not supported yet: leave it out (slow decay)")
     if switch.topology == "full_bridge" and not supply.sink:
         raise InputError(source, "supply.sink", "false with a flux-linkage curve "
                          "(coil.flux_current) is not supported yet: the bus pump-up into the "

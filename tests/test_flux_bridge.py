@@ -65,11 +65,16 @@ def test_design_json_returns_the_fast_decays_charge_times_the_bus(tmp_path):
     assert 0.2 * stored < b["returned_per_release_j"] < stored, (b["returned_per_release_j"], stored)
 
 
-def test_a_curve_with_a_supply_that_cannot_sink_is_refused_in_one_line(tmp_path):
-    r = run_cli("design", str(bridge_curve(tmp_path, sink=False)))
+@pytest.mark.parametrize("sink, extra, key", [(False, "", "supply.sink"),
+                                             (True, "fast_fraction = 0.3\n", "hold.fast_fraction")])
+def test_what_a_bridge_refuses_with_a_curve_is_one_line(tmp_path, sink, extra, key):
+    # the pump-up on the bulk capacitance and the mixed-decay orbit are a linear coil's
+    path = bridge_curve(tmp_path, sink=sink)
+    path.write_text(path.read_text().replace("[hold]\n", "[hold]\n" + extra, 1))
+    r = run_cli("design", str(path))
     assert r.returncode == 2, (r.stdout, r.stderr)
     lines = r.stderr.strip().splitlines()
-    assert len(lines) == 1 and "supply.sink:" in lines[0] and "flux-linkage curve" in lines[0], r.stderr
+    assert len(lines) == 1 and f"{key}:" in lines[0] and "flux-linkage curve" in lines[0], r.stderr
     assert "Traceback" not in r.stderr
 
 
