@@ -1100,8 +1100,7 @@ def _read_flux_curve(s: _Section, armature: Armature | None):
 
 
 def _flux_curve_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel,
-                       switch: Switch, thermal: Thermal, duty: "Duty | None",
-                       supply: Supply) -> None:
+                       switch: Switch, thermal: Thermal, duty: "Duty | None") -> None:
     """What a flux-linkage curve does not yet work with: one line naming the key."""
     if not coil.flux_current:
         return
@@ -1112,10 +1111,6 @@ def _flux_curve_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel
     if switch.topology == "full_bridge" and hold.fast_fraction > 0:
         raise InputError(source, "hold.fast_fraction", "mixed decay with a flux-linkage curve "
                          "(coil.flux_current) is not supported yet: leave it out (slow decay)")
-    if switch.topology == "full_bridge" and not supply.sink:
-        raise InputError(source, "supply.sink", "false with a flux-linkage curve "
-                         "(coil.flux_current) is not supported yet: the bus pump-up into the "
-                         "bulk capacitance is solved for a linear coil")
     if hold.mode == "current":
         raise InputError(source, "hold.mode", "\"current\" with a flux-linkage curve "
                          "(coil.flux_current) is not supported yet: use mode = \"voltage\"")
@@ -1595,7 +1590,7 @@ def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
     _check_bridge(source, origins, switch, freewheel, supply, hold, armature)
     _check_droop(source, origins, coil, switch, freewheel, supply, hold, armature)
-    _flux_curve_limits(source, coil, hold, freewheel, switch, thermal, duty, supply)
+    _flux_curve_limits(source, coil, hold, freewheel, switch, thermal, duty)
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:
         raise InputError(origins.get("clamp_voltage", source), "freewheel.clamp_voltage",
                          f"{freewheel.clamp_voltage:g} V is not above supply.max ({supply.max:g} V): "

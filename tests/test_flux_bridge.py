@@ -65,17 +65,51 @@ def test_design_json_returns_the_fast_decays_charge_times_the_bus(tmp_path):
     assert 0.2 * stored < b["returned_per_release_j"] < stored, (b["returned_per_release_j"], stored)
 
 
-@pytest.mark.parametrize("sink, extra, key", [(False, "", "supply.sink"),
-                                             (True, "fast_fraction = 0.3\n", "hold.fast_fraction")])
-def test_what_a_bridge_refuses_with_a_curve_is_one_line(tmp_path, sink, extra, key):
-    # the pump-up on the bulk capacitance and the mixed-decay orbit are a linear coil's
-    path = bridge_curve(tmp_path, sink=sink)
-    path.write_text(path.read_text().replace("[hold]\n", "[hold]\n" + extra, 1))
+def test_mixed_decay_with_a_curve_is_refused_in_one_line(tmp_path):
+    # the mixed-decay orbit is a linear coil's
+    path = bridge_curve(tmp_path)
+    path.write_text(path.read_text().replace("[hold]\n", "[hold]\nfast_fraction = 0.3\n", 1))
+    key = "hold.fast_fraction"
     r = run_cli("design", str(path))
     assert r.returncode == 2, (r.stdout, r.stderr)
     lines = r.stderr.strip().splitlines()
     assert len(lines) == 1 and f"{key}:" in lines[0] and "flux-linkage curve" in lines[0], r.stderr
     assert "Traceback" not in r.stderr
+
+
+def test_pump_up_of_a_curve_converges_and_is_the_rlc_for_a_straight_line():
+    # Runge-Kutta over the current: 400 steps within 1e-6 of 8,000; a straight-line curve
+    # (a linear coil) against the series RLC's closed form (any circuits textbook)
+    from coildrive.model.bridge import _flux_pump_up, pump_up
+    from test_flux_ngspice import CURVE_I, _psi
+    coil = flux.FluxCoil(flux.curve(tuple(CURVE_I), tuple(_psi(CURVE_I))), np.array([0.85, 1.15]))
+    args = (np.array([0.9, 1.4]), 24.0, 22e-6, 26.1, coil, 0.8)
+    a, b = _flux_pump_up(*args), _flux_pump_up(*args, steps=8000)
+    np.testing.assert_allclose(a.delta_v, b.delta_v, rtol=1e-6)
+    np.testing.assert_allclose(a.zero_time, b.zero_time, rtol=1e-6)
+    line = flux.FluxCoil(flux.curve((0.0, 1.0, 2.0), (0.0, 0.07, 0.14)), np.array(1.0))
+    x, y = pump_up(0.9, 24.0, 22e-6, 26.1, line, 0.8), pump_up(0.9, 24.0, 22e-6, 26.1, 0.07, 0.8)
+    assert float(x.delta_v) == pytest.approx(float(y.delta_v), rel=1e-10)
+    assert float(x.zero_time) == pytest.approx(float(y.zero_time), rel=1e-10)
+
+
+def test_design_checks_the_pumped_bus_with_a_curve(tmp_path):
+    r = run_cli("design", str(bridge_curve(tmp_path, sink=False)), "--json")
+    assert r.returncode in (0, 1), r.stderr
+    doc = json.loads(r.stdout)
+    b = doc["topology"]["bridge"]
+    checks = {c["name"]: c for c in doc["checks"]}
+    assert b["sink"] is False and b["pump_up_v"] > 0 and "bus_pump_up" in checks
+    # the bus rises by at most what the stored energy can lift it on the bulk capacitor
+    # (no losses: 1/2 C (v2^2 - v1^2) <= W), on the curve's highest tolerance, from the
+    # highest supply
+    drive = load_drive(bridge_curve(tmp_path, sink=False))
+    coil = loop(drive, 24.0, 20.0, l_factor=1.0 + drive.coil.inductance_tolerance).inductance
+    i_top = doc["adc"]["trip_current_a"]   # the most current any turn-off interrupts
+    w = float(np.ravel(flux.energy(coil, i_top))[0])
+    v1 = drive.supply.max
+    bound = (v1 ** 2 + 2.0 * w / drive.supply.capacitance) ** 0.5
+    assert b["pumped_bus_v"] <= bound + 1e-9, (b["pumped_bus_v"], bound)
 
 
 def test_simulate_releases_through_the_fast_path(tmp_path):

@@ -24,7 +24,7 @@ pump-up into the bulk capacitance (the bus voltage when the current stops, and w
 and `coildrive simulate`'s switch columns played into the netlist's gates (the phases the
 header and the driver switch) against the CSV's current and coil voltage.
 
-The decays and the simulated phases run twice: with the linear inductor and with a
+The decays, the pump-up and the simulated phases run twice: with the linear inductor and with a
 saturating coil, the flux-controlled inductor of tests/test_flux_ngspice.py (a G source
 integrating the coil voltage into a 1 F capacitor, ngspice manual ch. 4 "Voltage and
 Current Sources"; a B source ``I = pwl(V(phi), ...)`` as the inverse of the curve, ch. 5
@@ -194,22 +194,26 @@ def test_slow_decay_recirculates_and_returns_nothing_as_ngspice_does(tmp_path, k
     assert float(rel.resistive) == pytest.approx(_stored(coil, i0), rel=1e-9)
 
 
-@pytest.mark.parametrize("capacitance", [22e-6, 470e-6], ids=["22uF", "470uF"])
-def test_pump_up_into_the_bulk_capacitance_matches_ngspice(tmp_path, capacitance):
-    r_on, t_on = _on_time()
+@pytest.mark.parametrize("capacitance, kind", [(22e-6, "linear"), (470e-6, "linear"), (22e-6, "curve")],
+                         ids=["22uF", "470uF", "curve-22uF"])
+def test_pump_up_into_the_bulk_capacitance_matches_ngspice(tmp_path, capacitance, kind):
+    coil = COILS[kind]
+    r_on, t_on = _on_time(coil)
     t_off = t_on + EDGE / 2 + STAGGER
     gates = {1: _pulse(0.0, t_on), 2: "DC 0", 3: "DC 0", 4: _on_until(t_off)}
     # the model's own decay time at a fixed bus bounds the pump-up run from above
-    i_est = float(rise_current(t_on, 0.0, V_SUP, r_on, L_COIL))
-    t_fixed = float(release(fast_decay(R_COIL, R_SENSE, V_SUP, V_D), i_est, I_DROP, L_COIL).zero_time)
+    i_est = float(rise_current(t_on, 0.0, V_SUP, r_on, coil))
+    t_fixed = float(release(fast_decay(R_COIL, R_SENSE, V_SUP, V_D), i_est, I_DROP, coil).zero_time)
     step = t_fixed / 4000
     tend = t_off + 1.3 * t_fixed
     measures = [f"meas tran ioff FIND i(VM) AT={t_off!r}", f"meas tran v1 FIND v(bus) AT={t_off!r}",
                 "meas tran tzero WHEN i(VM)=1e-6 FALL=1",
                 f"meas tran v2 MAX v(bus) from={t_off!r} to={tend!r}"]
-    res = run(tmp_path, "bridge-pump", _netlist("bridge-pump", gates, tend, step, measures,
-                                                sink=False, capacitance=capacitance))
-    pu = pump_up(res["ioff"], res["v1"], capacitance, R_COIL + R_SENSE, L_COIL, V_D)
+    res = run(tmp_path, "bridge-pump", _coil_netlist(_netlist("bridge-pump", gates, tend, step, measures,
+                                                              sink=False, capacitance=capacitance), coil))
+    pu = pump_up(res["ioff"], res["v1"], capacitance, R_COIL + R_SENSE, coil, V_D)
+    print(f"pump-up ({kind}, {capacitance * 1e6:g} uF) vs ngspice: dV {float(pu.delta_v):.6e}/"
+          f"{res['v2'] - res['v1']:.6e} V, zero {float(pu.zero_time):.6e}/{res['tzero'] - t_off:.6e} s")
     # ngspice: the rise of the bus (V2 - V1) within 1 %, and when the current stops (1 % + a step)
     assert res["v2"] - res["v1"] == pytest.approx(float(pu.delta_v), rel=0.01), (res["v2"] - res["v1"], float(pu.delta_v))
     assert abs(res["tzero"] - t_off - float(pu.zero_time)) <= 0.01 * float(pu.zero_time) + step
@@ -238,8 +242,6 @@ def test_simulated_switch_columns_drive_the_element_level_bridge(tmp_path, kind)
                      ('inductance = "70 mH"', coil)):
         assert old in text
         text = text.replace(old, new)
-    if kind == "curve":   # a curve's bus pump-up is not modelled (refused); the netlist's supply sinks
-        text = text.replace("sink = false", "sink = true")
     drive.write_text(text)
     csv = tmp_path / "act.csv"
     r = run_cli("simulate", str(drive), "--supply", f"{V_SUP:g}", "--coil-temp", "20", "--hold-time", "1 ms",
