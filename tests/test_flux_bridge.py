@@ -154,3 +154,21 @@ def test_generated_driver_runs_the_curve_in_the_loop(tmp_path):
             kinds += [m.kind for m in dec.feed(dev.read(t)) if isinstance(m, Event)]
         assert EventKind.PEAK_END in kinds and EventKind.OFF in kinds, (supply, kinds)
         assert EventKind.FAULT not in kinds, (supply, kinds)
+
+
+def test_check_passes_a_synthetic_capture_with_the_fast_release(tmp_path):
+    # plumbing (the synthetic capture shares the model): design -> synth capture -> check,
+    # and check's predicted release is the fast decay's through the curve
+    from coildrive.bench.check import check_capture
+    from coildrive.bench.synth import synth_capture
+    from coildrive.design import firmware_setting
+    from coildrive.model.rl import decay_time
+
+    d = design(load_drive(bridge_curve(tmp_path, sink=False)))
+    duty, peak = firmware_setting(d, 24.0, 60.0)
+    cap = synth_capture(d.drive, peak, duty, d.hold.frequency_hz, supply=24.0, coil_temp=60.0, hold_time=0.01)
+    items = {i.name: i for i in check_capture(cap, d).items}
+    assert all(i.status in ("pass", "info") for i in items.values()), {k: i.status for k, i in items.items()}
+    slow = loop(d.drive, 24.0, 60.0)
+    t_slow = float(decay_time(d.drive.release.current, 0.3, slow.r_off, slow.v_off, slow.inductance))
+    assert items["release_time"].predicted < 0.3 * t_slow, (items["release_time"].predicted, t_slow)
