@@ -1234,14 +1234,9 @@ def _flux_curve_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel
         raise InputError(source, "hold.regulation", "\"closed_loop\" with a flux-linkage curve "
                          "(coil.flux_current) is not supported yet: its gains come from a linear "
                          "coil; use \"fixed\" or \"supply_table\"")
-    if switch.topology == "full_bridge":
-        raise InputError(source, "switch.topology", "\"full_bridge\" with a flux-linkage curve "
-                         "(coil.flux_current) is not supported yet")
-    if duty is not None or thermal.capacity > 0:
-        raise InputError(source, "duty" if duty is not None else "thermal.capacity",
-                         "an on/off cycle's coil temperature with a flux-linkage curve "
-                         "(coil.flux_current) is not supported yet: leave [duty] and "
-                         "thermal.capacity / time_constant out")
+    if switch.topology == "full_bridge" and hold.fast_fraction > 0:
+        raise InputError(source, "hold.fast_fraction", "mixed decay with a flux-linkage curve "
+                         "(coil.flux_current) is not supported yet: leave it out (slow decay)")
     if hold.mode == "current":
         raise InputError(source, "hold.mode", "\"current\" with a flux-linkage curve "
                          "(coil.flux_current) is not supported yet: use mode = \"voltage\"")

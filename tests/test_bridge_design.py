@@ -60,8 +60,7 @@ def test_bundled_examples_a_bridge_refuses():
     assert refused == {("demo-valve", "bridge-m32-fast"), ("wash-valve-split-24v", "bridge-m32-fast"),
                        ("locker-latch-12v", "bridge-m32-fast"),
                        ("fuel-valve-boost-12v", "bridge-m32-fast"),   # a boosted peak: low side only
-                       ("dosing-valve-closed-loop", "bridge-m32-fast"),   # its Zener
-                       ("saturating-valve-24v", "bridge-m32-fast")}       # a flux-linkage curve
+                       ("dosing-valve-closed-loop", "bridge-m32-fast")}   # its Zener
 
 
 def test_the_design_loop_is_the_bridge_of_the_ngspice_reference():

@@ -69,11 +69,12 @@ def _flux_netlist(text: str, lp) -> str:
     psi = scale * coil.curve.psi(i)
     pairs = [f"{float(p):.12e}, {float(c):.12e}" for p, c in zip(psi, i)]
     rows = [", ".join(pairs[k:k + 6]) for k in range(0, len(pairs), 6)]
-    lines = [l for l in text.splitlines() if not l.startswith("LCOIL ")]
-    k = next(n for n, l in enumerate(lines) if l.startswith("RCOIL "))
-    lines[k + 1:k + 1] = ["GINT 0 phi n1 n2 1", "CPHI phi 0 1 IC=0", "RPHI phi 0 1e12",
-                          "BCOIL n1 n2 I = pwl(V(phi),", *(f"+ {r}," for r in rows[:-1]),
-                          f"+ {rows[-1]})"]
+    lines = text.splitlines()
+    k = next(n for n, l in enumerate(lines) if l.startswith("LCOIL "))
+    a, b = lines[k].split()[1:3]   # the inductor's nodes: the flux-controlled one takes them
+    lines[k:k + 1] = [f"GINT 0 phi {a} {b} 1", "CPHI phi 0 1 IC=0", "RPHI phi 0 1e12",
+                      f"BCOIL {a} {b} I = pwl(V(phi),", *(f"+ {r}," for r in rows[:-1]),
+                      f"+ {rows[-1]})"]
     return "\n".join(lines) + "\n"
 
 

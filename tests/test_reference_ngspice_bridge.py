@@ -23,15 +23,29 @@ returned to the supply), the slow decay (release time, nothing returned), and th
 pump-up into the bulk capacitance (the bus voltage when the current stops, and when);
 and `coildrive simulate`'s switch columns played into the netlist's gates (the phases the
 header and the driver switch) against the CSV's current and coil voltage.
+
+The decays, the pump-up and the simulated phases run twice: with the linear inductor and with a
+saturating coil, the flux-controlled inductor of tests/test_flux_ngspice.py (a G source
+integrating the coil voltage into a 1 F capacitor, ngspice manual ch. 4 "Voltage and
+Current Sources"; a B source ``I = pwl(V(phi), ...)`` as the inverse of the curve, ch. 5
+"Non-linear Dependent Sources (Behavioral Sources)", section 5.1 "B source (ASRC)";
+section numbers from memory) in place of ``LCOIL``: the model's exact quadrature
+(:mod:`coildrive.model.flux`) against ngspice's own time stepping, the energy returned
+to the supply ``int V_bus i dt`` over the fast decay included.
 """
 
 from __future__ import annotations
 
+from types import SimpleNamespace
+
+import numpy as np
 import pytest
 
 from ngspice_run import OPTIONS, knee, run
+from coildrive.model import flux
 from coildrive.model.bridge import fast_decay, fast_switch_voltage, pump_up, release, slow_decay
 from coildrive.model.rl import rise_current, rise_time
+from test_flux_ngspice import CURVE_I, _flux_netlist, _psi
 
 pytestmark = pytest.mark.ngspice
 
@@ -42,6 +56,22 @@ R_OFF_SWITCH = 1e9  # ohm, the switches' ROFF
 V_SUP, R_COIL, L_COIL = 24.0, 26.0, 0.069
 R_SW, R_SENSE, V_D = 0.035, 0.1, 0.8
 I_DROP = 0.1
+
+
+#: The two coils the decays run with: the linear inductor, and the saturating curve of
+#: tests/test_flux_ngspice.py (40 mWb tanh(i / 0.35 A) + 5 mH i, 119 mH small-signal).
+COILS = {"linear": L_COIL,
+         "curve": flux.FluxCoil(flux.curve(tuple(CURVE_I), tuple(_psi(CURVE_I))), np.array(1.0))}
+
+
+def _coil_netlist(text, coil):
+    """``text`` with ``LCOIL`` replaced by the flux-controlled inductor for a curve."""
+    return _flux_netlist(text, SimpleNamespace(inductance=coil)) if isinstance(coil, flux.FluxCoil) else text
+
+
+def _stored(coil, i):
+    """Energy stored at ``i`` A (J): ``1/2 L i^2``, or ``W = int i dpsi`` of a curve."""
+    return float(np.ravel(flux.energy(coil, i))[0]) if isinstance(coil, flux.FluxCoil) else 0.5 * coil * i * i
 
 
 def _netlist(title, gates, tstop, tmax, measures, *, sink=True, capacitance=100e-6, inline=False):
@@ -77,9 +107,9 @@ def _on_until(end):
 STAGGER = 10e-9
 
 
-def _on_time():
+def _on_time(coil=L_COIL):
     r_on = R_COIL + 2 * R_SW + R_SENSE
-    return r_on, 1.5 * float(rise_time(0.55, 0.0, V_SUP, r_on, L_COIL))
+    return r_on, 1.5 * float(rise_time(0.55, 0.0, V_SUP, r_on, coil))
 
 
 def test_bridge_rise_matches_ngspice(tmp_path):
@@ -96,12 +126,14 @@ def test_bridge_rise_matches_ngspice(tmp_path):
     assert res["ion"] == pytest.approx(i_on, rel=0.01)
 
 
-@pytest.mark.parametrize("inline", [False, True], ids=["sense-common-return", "sense-inline"])
-def test_fast_decay_returns_energy_to_the_supply_as_ngspice_does(tmp_path, inline):
-    r_on, t_on = _on_time()
-    i0 = float(rise_current(t_on, 0.0, V_SUP, r_on, L_COIL))
+@pytest.mark.parametrize("inline, kind", [(False, "linear"), (True, "linear"), (False, "curve")],
+                         ids=["sense-common-return", "sense-inline", "curve"])
+def test_fast_decay_returns_energy_to_the_supply_as_ngspice_does(tmp_path, inline, kind):
+    coil = COILS[kind]
+    r_on, t_on = _on_time(coil)
+    i0 = float(rise_current(t_on, 0.0, V_SUP, r_on, coil))
     path = fast_decay(R_COIL, R_SENSE, V_SUP, V_D)
-    rel = release(path, i0, I_DROP, L_COIL)
+    rel = release(path, i0, I_DROP, coil)
     t_zero = float(rel.zero_time)
     step = t_zero / 4000
     t_off = t_on + EDGE / 2 + STAGGER
@@ -114,24 +146,32 @@ def test_fast_decay_returns_energy_to_the_supply_as_ngspice_does(tmp_path, inlin
                 "meas tran tzero WHEN i(VM)=1e-6 FALL=1",
                 f"meas tran eback INTEG back {after}",
                 f"meas tran vq1max MAX vq1 {after}", f"meas tran vq4max MAX vq4 {after}"]
-    res = run(tmp_path, "bridge-fast", _netlist("bridge-fast", gates, tend, step, measures, inline=inline))
+    res = run(tmp_path, "bridge-fast", _coil_netlist(
+        _netlist("bridge-fast", gates, tend, step, measures, inline=inline), coil))
+    print(f"fast decay ({kind}) vs ngspice: i0 {i0:.6e}/{res['ioff']:.6e} A, zero "
+          f"{t_zero:.6e}/{res['tzero'] - t_off:.6e} s, returned {float(rel.returned):.6e}/{res['eback']:.6e} J")
     assert res["ioff"] == pytest.approx(i0, rel=0.01)
     # ngspice transient: time to drop-out and to zero within 1 % plus one step
     for name, t_model in (("tdrop", float(rel.drop_time)), ("tzero", t_zero)):
         assert abs(res[name] - t_off - t_model) <= 0.01 * t_model + step, (name, res[name] - t_off, t_model)
     # ngspice: the energy the supply takes back (V_bus x charge) within 1 %
     assert res["eback"] == pytest.approx(float(rel.returned), rel=0.01), (res["eback"], float(rel.returned))
+    # ... a share of the stored energy (1/2 L i0^2, or the curve's int i dpsi): the rest
+    # heats the coil and the body diodes
+    assert 0.0 < float(rel.returned) < _stored(coil, i0)
     # ngspice: Q1 and Q4 see V_bus + V_d (+ R_sense i from a common-return resistor), within 1 %
     v_sw = float(fast_switch_voltage(V_SUP, V_D, R_SENSE, inline, i0))
     for name in ("vq1max", "vq4max"):
         assert res[name] == pytest.approx(v_sw, rel=0.01), (name, res[name], v_sw)
 
 
-def test_slow_decay_recirculates_and_returns_nothing_as_ngspice_does(tmp_path):
-    r_on, t_on = _on_time()
-    i0 = float(rise_current(t_on, 0.0, V_SUP, r_on, L_COIL))
+@pytest.mark.parametrize("kind", list(COILS))
+def test_slow_decay_recirculates_and_returns_nothing_as_ngspice_does(tmp_path, kind):
+    coil = COILS[kind]
+    r_on, t_on = _on_time(coil)
+    i0 = float(rise_current(t_on, 0.0, V_SUP, r_on, coil))
     path = slow_decay(R_COIL, R_SW, R_SENSE, sense_inline=False)
-    rel = release(path, i0, I_DROP, L_COIL)
+    rel = release(path, i0, I_DROP, coil)
     t_drop = float(rel.drop_time)
     step = t_drop / 4000
     t_off = t_on + EDGE / 2
@@ -142,31 +182,38 @@ def test_slow_decay_recirculates_and_returns_nothing_as_ngspice_does(tmp_path):
     measures = ["let back = -v(bus) * i(VFEED)", f"meas tran ioff FIND i(VM) AT={t_off!r}",
                 f"meas tran tdrop WHEN i(VM)={I_DROP!r} FALL=1",
                 f"meas tran eback INTEG back from={t_off + 10 * EDGE!r} to={tend!r}"]
-    res = run(tmp_path, "bridge-slow", _netlist("bridge-slow", gates, tend, step, measures))
+    res = run(tmp_path, "bridge-slow", _coil_netlist(_netlist("bridge-slow", gates, tend, step, measures), coil))
     assert res["ioff"] == pytest.approx(i0, rel=0.01)
     # ngspice transient: the slow decay's time to drop-out within 1 % plus one step
     assert abs(res["tdrop"] - t_off - t_drop) <= 0.01 * t_drop + step, (res["tdrop"] - t_off, t_drop)
     # ngspice: nothing goes back to the supply (leakage only, far below the stored energy)
-    assert abs(res["eback"]) < 1e-4 * 0.5 * L_COIL * i0**2, res["eback"]
+    assert abs(res["eback"]) < 1e-4 * _stored(coil, i0), res["eback"]
     assert float(rel.returned) == 0.0
+    # the whole tail heats the loop: r int i^2 dt is the stored energy (1/2 L i0^2, or the
+    # curve's int i dpsi, scipy quad of i L_d(i) in tests/test_flux_cycle.py)
+    assert float(rel.resistive) == pytest.approx(_stored(coil, i0), rel=1e-9)
 
 
-@pytest.mark.parametrize("capacitance", [22e-6, 470e-6], ids=["22uF", "470uF"])
-def test_pump_up_into_the_bulk_capacitance_matches_ngspice(tmp_path, capacitance):
-    r_on, t_on = _on_time()
+@pytest.mark.parametrize("capacitance, kind", [(22e-6, "linear"), (470e-6, "linear"), (22e-6, "curve")],
+                         ids=["22uF", "470uF", "curve-22uF"])
+def test_pump_up_into_the_bulk_capacitance_matches_ngspice(tmp_path, capacitance, kind):
+    coil = COILS[kind]
+    r_on, t_on = _on_time(coil)
     t_off = t_on + EDGE / 2 + STAGGER
     gates = {1: _pulse(0.0, t_on), 2: "DC 0", 3: "DC 0", 4: _on_until(t_off)}
     # the model's own decay time at a fixed bus bounds the pump-up run from above
-    i_est = float(rise_current(t_on, 0.0, V_SUP, r_on, L_COIL))
-    t_fixed = float(release(fast_decay(R_COIL, R_SENSE, V_SUP, V_D), i_est, I_DROP, L_COIL).zero_time)
+    i_est = float(rise_current(t_on, 0.0, V_SUP, r_on, coil))
+    t_fixed = float(release(fast_decay(R_COIL, R_SENSE, V_SUP, V_D), i_est, I_DROP, coil).zero_time)
     step = t_fixed / 4000
     tend = t_off + 1.3 * t_fixed
     measures = [f"meas tran ioff FIND i(VM) AT={t_off!r}", f"meas tran v1 FIND v(bus) AT={t_off!r}",
                 "meas tran tzero WHEN i(VM)=1e-6 FALL=1",
                 f"meas tran v2 MAX v(bus) from={t_off!r} to={tend!r}"]
-    res = run(tmp_path, "bridge-pump", _netlist("bridge-pump", gates, tend, step, measures,
-                                                sink=False, capacitance=capacitance))
-    pu = pump_up(res["ioff"], res["v1"], capacitance, R_COIL + R_SENSE, L_COIL, V_D)
+    res = run(tmp_path, "bridge-pump", _coil_netlist(_netlist("bridge-pump", gates, tend, step, measures,
+                                                              sink=False, capacitance=capacitance), coil))
+    pu = pump_up(res["ioff"], res["v1"], capacitance, R_COIL + R_SENSE, coil, V_D)
+    print(f"pump-up ({kind}, {capacitance * 1e6:g} uF) vs ngspice: dV {float(pu.delta_v):.6e}/"
+          f"{res['v2'] - res['v1']:.6e} V, zero {float(pu.zero_time):.6e}/{res['tzero'] - t_off:.6e} s")
     # ngspice: the rise of the bus (V2 - V1) within 1 %, and when the current stops (1 % + a step)
     assert res["v2"] - res["v1"] == pytest.approx(float(pu.delta_v), rel=0.01), (res["v2"] - res["v1"], float(pu.delta_v))
     assert abs(res["tzero"] - t_off - float(pu.zero_time)) <= 0.01 * float(pu.zero_time) + step
@@ -174,25 +221,27 @@ def test_pump_up_into_the_bulk_capacitance_matches_ngspice(tmp_path, capacitance
     assert float(pu.zero_time) < t_fixed
 
 
-@pytest.mark.parametrize("fraction", [0.0, 0.3], ids=["slow-hold", "mixed-hold"])
-def test_simulated_switch_columns_drive_the_element_level_bridge(tmp_path, fraction):
+@pytest.mark.parametrize("kind, fraction", [("linear", 0.0), ("linear", 0.3), ("curve", 0.0)],
+                         ids=["slow-hold", "mixed-hold", "curve-slow-hold"])
+def test_simulated_switch_columns_drive_the_element_level_bridge(tmp_path, kind, fraction):
     """`coildrive simulate`'s per-switch columns of a bridge, played into the gates of the
     element-level netlist (each switch's edges; a switch that turns on waits STAGGER after
     the one that turns off, a dead time in which a body diode carries the current; Q4
     opens STAGGER after Q1): the current at the end of the peak and at the final
     turn-off, the time to zero, and the coil voltage in a slow and in a fast decay (with
     mixed decay also in a fast part of the hold), against the CSV (ngspice, 1 %)."""
-    import numpy as np
-
     from conftest import BOARDS, EXAMPLES, run_cli
     board = tmp_path / "bridge.toml"
     board.write_text((BOARDS / "bridge-m32-fast.toml").read_text().replace(
         'on_resistance = "40 mohm"', f'on_resistance = "{R_SW * 1e3:g} mohm"'))
     drive = tmp_path / "drive.toml"
     text = (EXAMPLES / "dosing-valve-bridge-24v.toml").read_text()
+    table = ", ".join(f'"{x * 1e3:.9f} mWb"' for x in _psi(CURVE_I))
+    coil = (f'inductance = "{L_COIL * 1e3:g} mH"' if kind == "linear" else
+            f"flux_current = {CURVE_I}\nflux_linkage = [{table}]")
     for old, new in (('board = "bridge-m32-fast"', f'board = "{board}"'),
                      ('resistance = "24 ohm"', f'resistance = "{R_COIL:g} ohm"'),
-                     ('inductance = "70 mH"', f'inductance = "{L_COIL * 1e3:g} mH"')):
+                     ('inductance = "70 mH"', coil)):
         assert old in text
         text = text.replace(old, new)
     if fraction:
@@ -235,8 +284,8 @@ def test_simulated_switch_columns_drive_the_element_level_bridge(tmp_path, fract
     t_hold_fast = 0.5 * (edges[-4] + edges[-3])   # with mixed decay: the last fast part of the hold
     if fraction:
         measures.append(f"meas tran vhfast FIND vcoil AT={t_hold_fast!r}")
-    res = run(tmp_path, "bridge-phases", _netlist("bridge-phases", gates, t_off + 1.2 * t_zero, step,
-                                                  measures, inline=True))
+    res = run(tmp_path, "bridge-phases", _coil_netlist(_netlist(
+        "bridge-phases", gates, t_off + 1.2 * t_zero, step, measures, inline=True), COILS[kind]))
 
     def model(col, at):
         return float(np.interp(at, t, w[col]))
@@ -307,3 +356,45 @@ def test_mixed_decay_orbit_matches_ngspice(tmp_path, duty, fraction, inline):
     back = V_SUP * float(ss.charge_fast)
     assert res["eback"] == pytest.approx(back, rel=0.01), (res["eback"], back)
     assert bool(ss.dcm) == (duty == 0.05)
+
+
+def test_slow_decay_hold_orbit_of_a_curve_matches_ngspice(tmp_path):
+    """The hold of a saturating coil on a bridge (on through Q1 + Q4, off recirculating
+    through Q2 + Q4, no opposing voltage): the exact periodic orbit of
+    :func:`coildrive.model.flux.orbit` for ``v_off = 0``, started in ngspice at its lowest
+    current (the flux node's initial condition ``psi(i_min)``) and run five time
+    constants at the incremental inductance of the mean: an orbit off by d drifts by
+    (1 - e^-5) d toward the true one. ngspice, the last period: the start and end of its
+    on-time and the mean within 1 %."""
+    from coildrive.model.pwm import pwm_steady_state
+
+    coil = COILS["curve"]
+    r_on = R_COIL + 2 * R_SW + R_SENSE
+    r_off = R_COIL + 2 * R_SW   # the sense resistor in the common return: out of the loop
+    f, duty = 20e3, 0.30
+    period = 1.0 / f
+    ss = pwm_steady_state(duty, f, V_SUP, r_on, r_off, 0.0, coil)
+    i_min, i_max = float(ss.i_min), float(ss.i_max)
+    assert 0.1 < i_min < i_max, "precondition: continuous conduction"
+    tau = float(coil.incremental(float(ss.mean))) / r_off
+    n = max(4, round(5.0 * tau * f))
+    tstop = n * period
+    t0 = tstop - period
+    t_on = duty * period
+
+    def pulse(start, width):
+        return f"PULSE(0 1 {start!r} {EDGE} {EDGE} {width - EDGE!r} {period!r})"
+    gates = {1: pulse(0.0, t_on), 2: pulse(t_on + 2 * EDGE, period - t_on - 4 * EDGE), 3: "DC 0",
+             4: "DC 1"}
+    window = f"from={t0!r} to={tstop!r}"
+    measures = [f"meas tran istart FIND i(VM) AT={t0!r}",
+                f"meas tran iopen FIND i(VM) AT={t0 + t_on - EDGE!r}", f"meas tran iavg AVG i(VM) {window}"]
+    text = _coil_netlist(_netlist("bridge-orbit", gates, tstop, period / 100, measures), coil)
+    psi0 = float(np.ravel(flux.linkage(coil, i_min))[0])
+    text = text.replace("CPHI phi 0 1 IC=0", f"CPHI phi 0 1 IC={psi0!r}")
+    res = run(tmp_path, "bridge-orbit", text)
+    print(f"slow-decay orbit (curve) vs ngspice after {n} periods: i_min {i_min:.6e}/{res['istart']:.6e}, "
+          f"i_max {i_max:.6e}/{res['iopen']:.6e}, mean {float(ss.mean):.6e}/{res['iavg']:.6e} A")
+    assert res["istart"] == pytest.approx(i_min, rel=0.01)
+    assert res["iopen"] == pytest.approx(i_max, rel=0.01)
+    assert res["iavg"] == pytest.approx(float(ss.mean), rel=0.01)

@@ -225,33 +225,47 @@ def test_design_cycle_against_solve_ivp(cycled):
     # (coildrive's circuit physics as the input, the integration independent)
     drive = cycled.drive
     t = cycled.thermal_cycle
-    label = t.cycle["corner"]
-    from coildrive.design.regulation import solve_hold
-    from coildrive.design.timer import solve_timer
-    b = drive.board
-    timer = solve_timer(b.timer.clock, b.timer.bits, b.timer.prescaler_max, drive.hold.frequency,
-                        drive.hold.frequency_tolerance, b.timer.prescalers)
-    plan = solve_hold(drive, timer, cycled.pull_in.peak_time_s)
-    heat = plan.heat
-    k = next(i for i in range(len(heat.supply)) if heat.label(i) == label)
-    tk = heat.tol.take([k])
-    energies = on_energies(drive, heat.supply[k:k + 1], tk.r_factor, tk.l_factor,
-                           plan.heat_compare[k:k + 1] / timer.period_ticks, timer.frequency_hz,
-                           {"diode_factor": tk.diode_factor, "fast_factor": tk.fast_factor,
-                            "sense_factor": tk.sense_factor}, cycled.pull_in.peak_time_s)
+    energies, amb = hottest_point_energies(cycled)
     cyc, th = drive.duty, drive.thermal
 
     def power(temp):
         return float(sum(np.asarray(e)[0] for e in energies(np.array([temp])))) / cyc.on_time
     # start where the model says the orbit is and run 60 cycles (0.75 tau): an orbit that
     # is not periodic would drift; then check the end of the on-time and of the off-time
-    amb = float(heat.ambient[k])
-    hot, cool = None, t.cycle["coolest_c"]
-    for _ in range(60):
-        hot, cool = ivp_cycle_from(power, amb, cool, cyc.on_time, cyc.off_time, th.resistance,
-                                   th.capacity)
+    hot, cool = ivp_cycles(power, amb, t.cycle["coolest_c"], drive, 60)
     assert hot == pytest.approx(t.cycle["hottest_c"], abs=2e-3), "scipy solve_ivp, 60 cycles"
     assert cool == pytest.approx(t.cycle["coolest_c"], abs=2e-3), "scipy solve_ivp, 60 cycles"
+
+
+def hottest_point_energies(d):
+    """``(on_energies function, ambient degC)`` at the heating point of the design ``d``
+    where its cycle is hottest: the actuation's copper heat as the design computes it."""
+    from coildrive.design.regulation import solve_hold
+    from coildrive.design.timer import solve_timer
+    drive = d.drive
+    b = drive.board
+    timer = solve_timer(b.timer.clock, b.timer.bits, b.timer.prescaler_max, drive.hold.frequency,
+                        drive.hold.frequency_tolerance, b.timer.prescalers)
+    plan = solve_hold(drive, timer, d.pull_in.peak_time_s)
+    heat = plan.heat
+    k = next(i for i in range(len(heat.supply)) if heat.label(i) == d.thermal_cycle.cycle["corner"])
+    tk = heat.tol.take([k])
+    energies = on_energies(drive, heat.supply[k:k + 1], tk.r_factor, tk.l_factor,
+                           plan.heat_compare[k:k + 1] / timer.period_ticks, timer.frequency_hz,
+                           {"diode_factor": tk.diode_factor, "fast_factor": tk.fast_factor,
+                            "sense_factor": tk.sense_factor}, d.pull_in.peak_time_s)
+    return energies, float(heat.ambient[k])
+
+
+def ivp_cycles(power, ambient, start, drive, cycles):
+    """``cycles`` on/off cycles of ``drive``'s [duty] and [thermal] from ``start`` degC by
+    scipy solve_ivp: ``(hottest, coolest)`` degC of the last one."""
+    cyc, th = drive.duty, drive.thermal
+    hot, cool = None, start
+    for _ in range(cycles):
+        hot, cool = ivp_cycle_from(power, ambient, cool, cyc.on_time, cyc.off_time, th.resistance,
+                                   th.capacity)
+    return hot, cool
 
 
 def ivp_cycle_from(power, ambient, start, t_on, t_off, r_th, capacity):

@@ -195,6 +195,20 @@ class FluxCoil:
         return self.scale * self.curve.incremental(0.0)
 
 
+def energy(coil: FluxCoil, i):
+    """Energy stored in the coil at ``i`` A, ``W = int_0^i i dpsi = i psi(i) - W'(i)`` (J
+    per point): what a decay to zero takes out of it (the rest of that decay's losses
+    come from the supply)."""
+    c = coil.curve
+    i = np.asarray(i, float)
+    return coil.scale * (i * c.psi(i) - c.coenergy(i))
+
+
+def linkage(coil: FluxCoil, i):
+    """Flux linkage ``psi(i)`` in Wb per point."""
+    return coil.scale * coil.curve.psi(i)
+
+
 def small_signal(inductance):
     """The inductance a report shows per point: H as given for a linear coil, the
     incremental inductance at zero current for a :class:`FluxCoil` (or the magnetising

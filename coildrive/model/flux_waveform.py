@@ -69,10 +69,11 @@ def stitch_periods(t0, t_on: float, on_t, off_t, *values):
 
 
 def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: float,
-              hold_time: float, points: int):
+              hold_time: float, points: int, release_lp: Loop | None = None):
     """The sample pieces of one actuation: ``(time, current, switch_on, t_off, i_off)``
     (s, A, 0/1 arrays; the final turn-off time s and current A), through the loop ``lp``
-    of one operating point whose inductance is a :class:`~coildrive.model.flux.FluxCoil`."""
+    of one operating point whose inductance is a :class:`~coildrive.model.flux.FluxCoil`;
+    the final decay through ``release_lp`` where it differs (a full bridge's fast path)."""
     coil = lp.inductance
     coil = coil.with_scale(float(np.ravel(coil.scale)[0]))
     v, r_on, r_off, v_off = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off))
@@ -107,6 +108,8 @@ def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: 
     ons.append(on_flat)
     t_cut = peak_time + (n - 1) * period + t_on
     i_cut = float(tops[-1])
+    if release_lp is not None and release_lp is not lp:
+        tr = Track(coil, v, r_on, float(release_lp.r_off), float(release_lp.v_off), peak_end)
     tz = float(tr.to_zero(i_cut))
     td = np.linspace(0.0, tz, big + 1)[1:]
     ts.append(t_cut + td)

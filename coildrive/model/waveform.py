@@ -133,8 +133,9 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
         return _split_actuation(drive, lp, supply, coil_temp, peak_time, duty, frequency,
                                 hold_time, r_factor, l_factor, points, label)
     if isinstance(lp.inductance, FluxCoil):   # a saturating coil: its own sampling
+        fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") if full_bridge(drive) else lp
         return _flux_actuation(drive, lp, supply, peak_time, duty, frequency, hold_time,
-                               points, label)
+                               points, label, fast)
     v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
     big = 40 * points
     ts, cs, ons = [], [], []
@@ -208,17 +209,23 @@ def one_point(inductance):
 
 
 def _flux_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: float,
-                    frequency: float, hold_time: float, points: int, label: str) -> Waveform:
-    """:func:`actuation` of a saturating coil (:mod:`coildrive.model.flux_waveform`)."""
+                    frequency: float, hold_time: float, points: int, label: str,
+                    release_lp) -> Waveform:
+    """:func:`actuation` of a saturating coil (:mod:`coildrive.model.flux_waveform`); the
+    final decay through ``release_lp`` (a full bridge's fast path, else ``lp``)."""
     from .flux_waveform import actuation as flux_samples
 
     ts, cs, ons, t_cut, i_cut, tz = flux_samples(drive, lp, peak_time, duty, frequency,
-                                                 hold_time, points)
+                                                 hold_time, points, release_lp)
     time = np.concatenate(ts)
     current = np.concatenate(cs)
     on = np.concatenate(ons).astype(np.int8)
     v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
     events = {"on": 0.0, "hold": peak_time, "off": t_cut, "zero": t_cut + tz}
+    if full_bridge(drive):
+        v_sw = np.where(time > t_cut, _switch_and_sense(drive, release_lp, supply, current, on)[0], v_sw)
+        v_sw, sense, extra = _bridge_columns(drive, supply, time, current, on, v_sw, t_cut)
+        return Waveform(time, current, on, v_sw, sense, events, label, **extra)
     return Waveform(time, current, on, v_sw, sense, events, label)
 
 
