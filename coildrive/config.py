@@ -1375,11 +1375,11 @@ def resolve_board(spec: str, relative_to: Path | None = None) -> Path:
 
 
 def _check_droop(source: str, fw_origins: dict, coil: Coil, switch: Switch, freewheel: Freewheel,
-                 supply: Supply, hold: Hold, armature: Armature | None) -> None:
+                 supply: Supply, armature: Armature | None) -> None:
     """What the drooping bus (``supply.source_resistance``) is modelled with: a linear coil,
-    one switch (low or high side), a freewheel path that does not draw from the bus, a
-    voltage-mode hold the firmware runs open loop and no moving armature. Anything else is
-    refused in one line rather than designed on a stiff bus."""
+    one switch (low or high side), a freewheel path that does not draw from the bus and no
+    moving armature (any hold: the droop is the peak's; a regulated hold takes it out of
+    the hold). Anything else is refused in one line rather than designed on a stiff bus."""
     if not supply.droops:
         return
     why = None
@@ -1390,16 +1390,12 @@ def _check_droop(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     elif freewheel.type == "clamp":
         key, why = "freewheel.type", "a clamp across the switch (the release draws from the bus)"
         source = fw_origins.get("type", source)
-    elif hold.mode == "current":
-        key, why = "hold.mode", "a current-mode hold"
-    elif hold.regulation == "closed_loop":
-        key, why = "hold.regulation", "a closed-loop hold"
     elif armature is not None:
         key, why = "armature", "a moving armature"
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
                          f"{why}: expected source_resistance left out, or a linear coil, one switch, "
-                         "a diode/zener/resistor freewheel, a voltage-mode open-loop hold and no [armature]")
+                         "a diode/zener/resistor freewheel and no [armature]")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,
@@ -1682,7 +1678,7 @@ def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_
     merged, origins = _merged(brd.source, fw_board, source, fw_drive)
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
     _check_bridge(source, origins, switch, freewheel, supply, hold, armature)
-    _check_droop(source, origins, coil, switch, freewheel, supply, hold, armature)
+    _check_droop(source, origins, coil, switch, freewheel, supply, armature)
     _flux_curve_limits(source, coil, hold, freewheel, switch, thermal, duty)
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:
         raise InputError(origins.get("clamp_voltage", source), "freewheel.clamp_voltage",

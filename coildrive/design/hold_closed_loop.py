@@ -44,6 +44,7 @@ from .envelope import envelope, heating_grid, hottest, tolerances
 from .evaluate import evaluate
 from .figures import (adc_thresholds, corners_of, hold_spread, loss_figures, pull_in_result,
                       release_result, worst)
+from .hold_current import drooping_bus
 from .hold_voltage import MAX_PEAK_ROUNDS, _losses, _split_result, closing_checks, plot_points
 from .peak import plan_peak, shortest_peak_current
 from .diagnostics import rise_check, seat_check
@@ -51,6 +52,7 @@ from .thermal_cycle import (HeatPoints, cycle_caution, cycle_result, cycling, th
                             thermal_checks)
 from .topology import topology_cautions, topology_result
 from .result import Check, ClosedLoopResult, Design, DutyTable, HoldResult, TimerResult
+from .supply import supply_checks
 from .timer import timer_for
 from .turnoff import turn_offs
 
@@ -209,12 +211,14 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     if thermal is not None and thermal.cycle is not None:
         notes[2] = cycle_caution(thermal)   # the envelope's hot coil is the cycle's
     notes += thermal_cautions(thermal)
+    sup = drooping_bus(drive, env, res, long_, run_high, thresholds)
+    checks += supply_checks(sup)
     points = plot_points(drive, pk, env, nom, res_low, f)
     return Design(drive=drive, pull_in=pull_in, hold=hold, release=release, timer=timer_result,
                   adc=thresholds, duty_table=DutyTable([], [], []), corners=corners, nominal=nominal,
                   checks=checks, cautions=notes, monte_carlo=None, input_hash=drive.input_hash(),
                   worst_corner_index=pk.k_pull, armature=arm, split_decay=split,
-                  actuation_points=points, peak_table=None, topology=topo, thermal_cycle=thermal,
+                  actuation_points=points, peak_table=None, topology=topo, thermal_cycle=thermal, supply=sup,
                   rise_check=rise_check(drive, env, res, f), seat_check=seat_check(drive, env, res_low))
 
 

@@ -52,10 +52,13 @@ from . import hold_voltage
 from .checks import base_checks, cautions, energy_checks, loss_cautions, loss_checks
 from .corners import CornerGrid, corner_grid, nominal_point
 from .evaluate import PointResults, release_figures, switch_voltage_peak
-from .figures import (adc_thresholds, corners_of, hold_spread, loss_figures, pull_in_result,
+from .figures import (adc_code, adc_thresholds, corners_of, hold_spread, loss_figures, pull_in_result,
                       release_result, saving_figures, slow_hold_drive)
 from .diagnostics import rise_check, seat_check
 from .peak import plan_peak, shortest_peak_current
+from .supply import rise_current as bus_rise_current
+from .supply import rise_time as bus_rise_time
+from .supply import supply_checks, supply_result
 from .turnoff import turn_offs
 from .result import Check, CurrentModeResult, Design, HoldResult, Thresholds
 from .thermal_cycle import (HeatPoints, cycle_caution, cycle_result, cycling, thermal_cautions,
@@ -238,8 +241,10 @@ def evaluate_current(drive: Drive, th: Thresholds, supply, ambient, r_factor, l_
     temp, lp, cm = settle(drive, supply, ambient, r_factor, l_factor, lower, th.upper_a,
                           th.off_time_s, th.delay_s, peak_time if heat_peak is None else heat_peak)
     ss = cm.as_pwm()
-    t_pull = rise_time(drive.pull_in.current, 0.0, lp.v_on, lp.r_on, lp.inductance)
-    i_peak = rise_current(peak_time, 0.0, lp.v_on, lp.r_on, lp.inductance)
+    # the peak on the drooping bus where [supply] source_resistance is given (the hold's
+    # regulation takes the bus's droop out of the hold)
+    t_pull = bus_rise_time(drive, lp, drive.pull_in.current, lp.inductance)
+    i_peak = bus_rise_current(drive, lp, peak_time, lp.inductance)
     power = ss.rms**2 * lp.r_coil
     i_off = ss.i_max
     if split_decay(drive):
@@ -382,6 +387,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                                               th.delay_s, grid.label),
                            heat_peak, offs, hold.freewheel_power_w, hold.freewheel_elements_w)
     checks += thermal_checks(drive, pull_in.peak_time_s, thermal)
+    sup = drooping_bus(drive, grid, res, pk.long_time, cm.duty, thresholds)
+    checks += supply_checks(sup)
     if thermal is not None and thermal.cycle is not None:
         notes[2] = cycle_caution(thermal)   # the envelope's hot coil is the cycle's
     notes += thermal_cautions(thermal)
@@ -394,9 +401,22 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     return dataclasses.replace(
         fallback, drive=drive, pull_in=pull_in, hold=hold, release=release, adc=thresholds,
         split_decay=split, corners=corners, nominal=nominal, checks=checks, cautions=notes,
-        actuation_points=points, topology=topo, thermal_cycle=thermal, input_hash=drive.input_hash(), worst_corner_index=k_pull,
+        actuation_points=points, topology=topo, thermal_cycle=thermal, supply=sup, input_hash=drive.input_hash(), worst_corner_index=k_pull,
         rise_check=rise_check(drive, grid, res, fallback.timer.frequency_hz),
         seat_check=seat_check(drive, grid, res))
+
+
+def drooping_bus(drive: Drive, grid, res: PointResults, peak_time, duty, thresholds):
+    """The supply's figures (:func:`coildrive.design.supply.supply_result`) of a hold that
+    regulates its current: the peak of ``peak_time`` s on the drooping bus at the points of
+    ``res``, the hold's switch-on fraction ``duty`` for its capacitor ripple; the firmware
+    reads the bus through the board's supply sense as for the voltage-mode hold."""
+    b = drive.board
+    sense = b.supply_sense
+
+    def read(volts):
+        return adc_code(volts / sense.divider, b.adc.reference, b.adc.bits)
+    return supply_result(drive, grid, res, peak_time, duty, read, thresholds.supply_min_code)
 
 
 def _spread(drive: Drive, grid: CornerGrid, res: PointResults) -> dict:
@@ -552,7 +572,7 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
         ons.append(np.zeros_like(t))
         return t0 + dur, float(cs[-1][-1])
 
-    t, i = peak_time, peak_samples(peak_time, v, r_on, ind, big, ts, cs, ons)
+    t, i = peak_time, peak_samples(peak_time, v, r_on, ind, big, ts, cs, ons, drive)
     end = peak_time + hold_time
     regulated = upper < a
     first = True
