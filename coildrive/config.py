@@ -1374,12 +1374,13 @@ def resolve_board(spec: str, relative_to: Path | None = None) -> Path:
                      "and no such file")
 
 
-def _check_droop(source: str, fw_origins: dict, coil: Coil, switch: Switch, freewheel: Freewheel,
-                 supply: Supply, armature: Armature | None) -> None:
+def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
+                 armature: Armature | None) -> None:
     """What the drooping bus (``supply.source_resistance``) is modelled with: a linear coil,
-    one switch (low or high side), a freewheel path that does not draw from the bus and no
-    moving armature (any hold: the droop is the peak's; a regulated hold takes it out of
-    the hold). Anything else is refused in one line rather than designed on a stiff bus."""
+    one switch (low or high side) and no moving armature. Any hold (the droop is the peak's;
+    a regulated hold takes it out of the hold) and any freewheel path (a clamp's release,
+    which draws from the bus, is computed on the undrooped bus: the safe side). Anything
+    else is refused in one line rather than designed on a stiff bus."""
     if not supply.droops:
         return
     why = None
@@ -1387,15 +1388,12 @@ def _check_droop(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = "coil.flux_current", "a flux-linkage curve"
     elif switch.topology == "full_bridge":
         key, why = "switch.topology", "a full bridge (its fast decay returns charge to the bus)"
-    elif freewheel.type == "clamp":
-        key, why = "freewheel.type", "a clamp across the switch (the release draws from the bus)"
-        source = fw_origins.get("type", source)
     elif armature is not None:
         key, why = "armature", "a moving armature"
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
-                         f"{why}: expected source_resistance left out, or a linear coil, one switch, "
-                         "a diode/zener/resistor freewheel and no [armature]")
+                         f"{why}: expected source_resistance left out, or a linear coil, one switch "
+                         "and no [armature]")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,
@@ -1678,7 +1676,7 @@ def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_
     merged, origins = _merged(brd.source, fw_board, source, fw_drive)
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
     _check_bridge(source, origins, switch, freewheel, supply, hold, armature)
-    _check_droop(source, origins, coil, switch, freewheel, supply, armature)
+    _check_droop(source, coil, switch, supply, armature)
     _flux_curve_limits(source, coil, hold, freewheel, switch, thermal, duty)
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:
         raise InputError(origins.get("clamp_voltage", source), "freewheel.clamp_voltage",
