@@ -17,6 +17,8 @@ Outside references, named beside each check:
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
@@ -175,3 +177,24 @@ def test_regulated_holds_report_the_cycle(current, closed):
         assert any("Over its on/off cycle" in n for n in d.cautions)
         assert any("Held on continuously" in n for n in d.cautions)
         assert d.to_dict()["thermal_cycle"]["cycle"]["hottest_c"] == pytest.approx(t.cycle["hottest_c"])
+
+
+@pytest.mark.parametrize("hold", ['mode = "current"', 'regulation = "closed_loop"'])
+def test_cli_cycle_and_droop_together(tmp_path, hold):
+    # as a user runs it: the cycle and a drooping bus with a regulated hold, one JSON
+    # document with both sections (exit 0 or 1: the board's ratings may fail, never 2)
+    import json
+
+    from conftest import run_cli
+
+    p = _drive(tmp_path, hold).source
+    text = Path(p).read_text().replace('max = "28 V"', 'max = "28 V"\nsource_resistance = "0.4 ohm"\n'
+                                  'capacitance = "220 uF"', 1)
+    f = tmp_path / "both.toml"
+    f.write_text(text)
+    proc = run_cli("design", str(f), "--json")
+    assert proc.returncode in (0, 1), proc.stderr
+    doc = json.loads(proc.stdout)
+    assert doc["thermal_cycle"]["cycle"]["hottest_c"] == pytest.approx(doc["hold"]["coil_temp_c"])
+    assert doc["supply"]["lowest_bus_v"] < 20.0 and doc["supply"]["source_resistance_ohm"] == 0.4
+    assert "supply_droop" in {c["name"] for c in doc["checks"]}
