@@ -1460,12 +1460,13 @@ def _open_loop_refusal(hold: Hold, armature: Armature | None) -> tuple[str, str]
     return None
 
 
-def _check_droop(source: str, fw_origins: dict, coil: Coil, switch: Switch, freewheel: Freewheel,
-                 supply: Supply, hold: Hold, armature: Armature | None) -> None:
+def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
+                 armature: Armature | None) -> None:
     """What the drooping bus (``supply.source_resistance``) is modelled with: a linear coil,
-    one switch (low or high side), a freewheel path that does not draw from the bus, a
-    voltage-mode hold the firmware runs open loop and no moving armature. Anything else is
-    refused in one line rather than designed on a stiff bus."""
+    one switch (low or high side) and no moving armature. Any hold (the droop is the peak's;
+    a regulated hold takes it out of the hold) and any freewheel path (a clamp's release,
+    which draws from the bus, is computed on the undrooped bus: the safe side). Anything
+    else is refused in one line rather than designed on a stiff bus."""
     if not supply.droops:
         return
     why = None
@@ -1473,19 +1474,12 @@ def _check_droop(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = "coil.flux_current", "a flux-linkage curve"
     elif switch.topology == "full_bridge":
         key, why = "switch.topology", "a full bridge (its fast decay returns charge to the bus)"
-    elif freewheel.type == "clamp":
-        key, why = "freewheel.type", "a clamp across the switch (the release draws from the bus)"
-        source = fw_origins.get("type", source)
-    elif hold.mode == "current":
-        key, why = "hold.mode", "a current-mode hold"
-    elif hold.regulation == "closed_loop":
-        key, why = "hold.regulation", "a closed-loop hold"
     elif armature is not None:
         key, why = "armature", "a moving armature"
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
-                         f"{why}: expected source_resistance left out, or a linear coil, one switch, "
-                         "a diode/zener/resistor freewheel, a voltage-mode open-loop hold and no [armature]")
+                         f"{why}: expected source_resistance left out, or a linear coil, one switch "
+                         "and no [armature]")
 
 
 def _read_boost(s: "_Section") -> tuple:
@@ -1834,7 +1828,7 @@ def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
     _check_bridge(source, origins, switch, freewheel, supply, hold, armature)
     _eddy_limits(source, coil, hold, freewheel, switch, thermal, duty, supply)
-    _check_droop(source, origins, coil, switch, freewheel, supply, hold, armature)
+    _check_droop(source, coil, switch, supply, armature)
     _check_boost(source, origins, coil, switch, freewheel, supply, hold, pull_in, armature, duty)
     _flux_curve_limits(source, coil, hold, freewheel, switch, thermal, duty)
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:

@@ -416,8 +416,6 @@ BAD = [
     ('capacity = "18 J/K"', 'capacity = "1 MJ/K"', "thermal.capacity: '1 MJ/K' is outside 0.001 J/K .. 100000 J/K"),
     ('actuation_rate = "0.2 Hz"', 'actuation_rate = "2 kHz"', "duty.actuation_rate: '2 kHz' is outside"),
     ('on_time = "1.5 s"', 'on_time = "1.5 s"\nspeed = 3', "duty.speed: unknown key"),
-    ('[hold]\n', '[hold]\nmode = "current"\n', "duty: an on/off cycle's coil temperature is modelled for the fixed and supply-table holds only"),
-    ('[hold]\n', '[hold]\nregulation = "closed_loop"\n', 'with regulation = "closed_loop"'),
 ]
 
 

@@ -95,7 +95,8 @@ class HeatingGrid:
     index: np.ndarray
 
     def label(self, k: int) -> str:
-        return _label(self.supply[k], self.ambient[k], None, self.tol, int(self.index[k]))
+        # ``tol`` is already taken per point: point k's own tolerance corner is its row k
+        return _label(self.supply[k], self.ambient[k], None, self.tol, k)
 
 
 def heating_grid(drive: Drive, tol: Tolerances, extra=()) -> HeatingGrid:

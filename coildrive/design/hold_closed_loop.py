@@ -44,12 +44,15 @@ from .envelope import envelope, heating_grid, hottest, tolerances
 from .evaluate import evaluate
 from .figures import (adc_thresholds, corners_of, hold_spread, loss_figures, pull_in_result,
                       release_result, worst)
-from .hold_voltage import _losses, _split_result, closing_checks, plot_points
+from .hold_current import drooping_bus
+from .hold_voltage import MAX_PEAK_ROUNDS, _losses, _split_result, closing_checks, plot_points
 from .peak import plan_peak, shortest_peak_current
 from .diagnostics import rise_check, seat_check
-from .thermal_cycle import refuse_cycle
+from .thermal_cycle import (HeatPoints, cycle_caution, cycle_result, cycling, thermal_cautions,
+                            thermal_checks)
 from .topology import topology_cautions, topology_result
 from .result import Check, ClosedLoopResult, Design, DutyTable, HoldResult, TimerResult
+from .supply import supply_checks
 from .timer import timer_for
 from .turnoff import turn_offs
 
@@ -58,7 +61,6 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     if samples > 0:
         raise InputError("--samples", "", "the Monte Carlo covers the fixed and supply-table holds "
                          "only (this drive has hold.regulation = \"closed_loop\")")
-    refuse_cycle(drive, 'regulation = "closed_loop"')
     if drive.switch.topology == "full_bridge":
         raise InputError(drive.source, "switch.topology", "'full_bridge': the closed-loop hold is "
                          "designed for one switch (low- or high-side); use the fixed or "
@@ -86,18 +88,19 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     hf = {"diode_factor": heat.tol.diode_factor, "fast_factor": heat.tol.fast_factor,
           "sense_factor": heat.tol.sense_factor}
 
-    def solve(code: int):
+    def solve(code: int, peak_time: float):
         """Everything that follows from set-point ``code``: the coil heats under the most
         current the loop runs (the channel reading low, one code up) at every supply x
-        ambient x tolerance corner; the envelope at those hottest coils; the duties of
+        ambient x tolerance corner -- after a long hold, or with an on/off cycle and a heat
+        capacity the hottest over the cycle, each actuation a peak of ``peak_time`` s, the
+        regulated hold and the release; the envelope at those hottest coils; the duties of
         the weakest and the strongest hold at each corner."""
         strong_h = (code + 1) * lsb / reading_range(heat.tol.sense_factor, gt)[0]
-
-        def heat_power(temp):
-            lph = loop(drive, heat.supply, temp, heat.tol.r_factor, heat.tol.l_factor, **hf)
-            ss = regulated_duty(drive, lph, strong_h, f, switch_leg, floor)[2]
-            return ss.rms**2 * lph.r_coil
-        temps = settle_temperature(heat.ambient, drive.thermal.resistance, heat_power)
+        pts = HeatPoints(heat.supply, heat.ambient, heat.tol.r_factor, heat.tol.l_factor, hf,
+                         heat.label,
+                         lambda lph: regulated_duty(drive, lph, strong_h, f, switch_leg, floor)[2])
+        heat_power = pts.power(drive)
+        temps = pts.temperature(drive, peak_time)
         hot, where = hottest(heat, temps, len(tol))
         hot = np.maximum(hot, drive.ambient.max)
         env = envelope(drive, tol, hot)
@@ -107,24 +110,34 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
         rd_low, rd_high = reading_range(env.sense_factor, gt)
         d_weak, run_low, ss_low = regulated_duty(drive, lp, code * lsb / rd_high, f, switch_leg, floor)
         d_strong, run_high, _ = regulated_duty(drive, lp, (code + 1) * lsb / rd_low, f, switch_leg, floor)
-        return temps, where, hot, env, lp, d_weak, d_strong, run_low, run_high, heat_power, ss_low
+        return temps, where, hot, env, lp, d_weak, d_strong, run_low, run_high, heat_power, ss_low, pts
 
     # The sample is not the mean (the ripple's curvature; in the coil path the middle of
     # the period may fall in the off-time): the set-point goes up a code at a time until
     # the weakest hold's mean meets the hold current (the loop cannot hold it where it
     # saturates: that corner fails its own check).
+    # With an on/off cycle the peak heats the coil too: the set-point and the peak are
+    # solved again with the peak's length until it no longer grows (as in voltage mode).
     full = 2**board.adc.bits - 1
-    while True:
-        temps, where, hot, env, lp, d_weak, d_strong, run_low, run_high, heat_power, ss_low = solve(setpoint)
-        short_of = np.isfinite(d_weak) & (ss_low.mean < drive.hold.current)
-        if not np.any(short_of) or setpoint >= full - 1:
+    first_setpoint = setpoint
+    heat_peak = 0.0
+    for _ in range(MAX_PEAK_ROUNDS):
+        setpoint = first_setpoint
+        while True:
+            (temps, where, hot, env, lp, d_weak, d_strong, run_low, run_high, heat_power, ss_low,
+             pts) = solve(setpoint, heat_peak)
+            short_of = np.isfinite(d_weak) & (ss_low.mean < drive.hold.current)
+            if not np.any(short_of) or setpoint >= full - 1:
+                break
+            setpoint += 1
+        at = dict(coil_temp=env.coil_temp, factors=env.factors())
+        first = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor, run_low, f, 0.0, **at)
+        pk = plan_peak(drive, env, first)
+        longer = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate
+        if not cycling(drive) or longer <= heat_peak:
             break
-        setpoint += 1
-    at = dict(coil_temp=env.coil_temp, factors=env.factors())
+        heat_peak = longer
     saturated = np.isnan(d_weak) | np.isnan(d_strong) | (d_weak <= floor + 1e-12) & (floor > 0)
-
-    first = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor, run_low, f, 0.0, **at)
-    pk = plan_peak(drive, env, first)
     short, long_ = pk.short_time, pk.long_time
     res_low = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor, run_low, f,
                        short, reuse=first, **at)
@@ -164,7 +177,9 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     spread.update(max_mean_current_a=float(res.hold.mean[k_max]), max_corner=env.label(k_max),
                   ripple_a=float(max(np.max(res.hold.ripple), np.max(res_low.hold.ripple))),
                   coil_power_w=heat_p, coil_temp_c=float(hot[k_hot]),
-                  hottest_corner=heat.label(k_heat) + f", settles at {hot[k_hot]:.4g} degC",
+                  hottest_corner=heat.label(k_heat) + (
+                      f", the hottest over the on/off cycle {hot[k_hot]:.4g} degC" if cycling(drive)
+                      else f", settles at {hot[k_hot]:.4g} degC"),
                   discontinuous_corners=int(np.sum(res_low.hold.dcm | res.hold.dcm)),
                   coil_power_corner=heat.label(k_heat))
     hold = HoldResult(
@@ -190,12 +205,20 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     arm, more, notes = closing_checks(drive, env, res_low, hold, loss, release, split)
     checks += more
     notes += topology_cautions(drive, topo)
+    thermal = cycle_result(drive, pts, heat_peak, offs, hold.freewheel_power_w,
+                           hold.freewheel_elements_w)
+    checks += thermal_checks(drive, pull_in.peak_time_s, thermal)
+    if thermal is not None and thermal.cycle is not None:
+        notes[2] = cycle_caution(thermal)   # the envelope's hot coil is the cycle's
+    notes += thermal_cautions(thermal)
+    sup = drooping_bus(drive, env, res, long_, run_high, thresholds)
+    checks += supply_checks(sup)
     points = plot_points(drive, pk, env, nom, res_low, f)
     return Design(drive=drive, pull_in=pull_in, hold=hold, release=release, timer=timer_result,
                   adc=thresholds, duty_table=DutyTable([], [], []), corners=corners, nominal=nominal,
                   checks=checks, cautions=notes, monte_carlo=None, input_hash=drive.input_hash(),
                   worst_corner_index=pk.k_pull, armature=arm, split_decay=split,
-                  actuation_points=points, peak_table=None, topology=topo,
+                  actuation_points=points, peak_table=None, topology=topo, thermal_cycle=thermal, supply=sup,
                   rise_check=rise_check(drive, env, res, f), seat_check=seat_check(drive, env, res_low))
 
 

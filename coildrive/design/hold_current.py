@@ -52,13 +52,17 @@ from . import hold_voltage
 from .checks import base_checks, cautions, energy_checks, loss_cautions, loss_checks
 from .corners import CornerGrid, corner_grid, nominal_point
 from .evaluate import PointResults, release_figures, switch_voltage_peak
-from .figures import (adc_thresholds, corners_of, hold_spread, loss_figures, pull_in_result,
+from .figures import (adc_code, adc_thresholds, corners_of, hold_spread, loss_figures, pull_in_result,
                       release_result, saving_figures, slow_hold_drive)
 from .diagnostics import rise_check, seat_check
 from .peak import plan_peak, shortest_peak_current
+from .supply import rise_current as bus_rise_current
+from .supply import rise_time as bus_rise_time
+from .supply import supply_checks, supply_result
 from .turnoff import turn_offs
 from .result import Check, CurrentModeResult, Design, HoldResult, Thresholds
-from .thermal_cycle import refuse_cycle
+from .thermal_cycle import (HeatPoints, cycle_caution, cycle_result, cycling, thermal_cautions,
+                            thermal_checks)
 from .timer import solve_timer, timer_for
 from .topology import topology_cautions, topology_result
 
@@ -95,19 +99,28 @@ def steady_state(drive: Drive, lp, lower_a, upper_a, off_time, delay) -> Current
                                  lp.inductance, delay)
 
 
-def settle(drive: Drive, supply, ambient, r_factor, l_factor, lower_a, upper_a, off_time, delay):
-    """Coil temperature (degC, ``inf`` on runaway), loop and steady state after a long
-    current-mode hold at each point (the fixed point of model/thermal.py)."""
-    def at(temp):
-        lp = loop(drive, supply, temp, r_factor, l_factor)
-        return lp, steady_state(drive, lp, lower_a, upper_a, off_time, delay)
+def settle(drive: Drive, supply, ambient, r_factor, l_factor, lower_a, upper_a, off_time, delay,
+           peak_time=0.0):
+    """Coil temperature (degC, ``inf`` on runaway), loop and steady state at each point
+    after a long current-mode hold (the fixed point of model/thermal.py), or with an on/off
+    cycle and a heat capacity the hottest over the cycle, each actuation a peak of
+    ``peak_time`` s, the hold and the release (:mod:`coildrive.design.thermal_cycle`)."""
+    pts = heat_points(drive, supply, ambient, r_factor, l_factor, lower_a, upper_a, off_time,
+                      delay, str)
+    temp = pts.temperature(drive, peak_time)
+    lp = loop(drive, supply, np.where(np.isfinite(temp), temp, drive.thermal.max_coil_temp),
+              r_factor, l_factor)
+    return temp, lp, steady_state(drive, lp, lower_a, upper_a, off_time, delay)
 
-    def power_at(temp):
-        lp, ss = at(temp)
-        return ss.rms**2 * lp.r_coil
-    temp = settle_temperature(ambient, drive.thermal.resistance, power_at)
-    lp, ss = at(np.where(np.isfinite(temp), temp, drive.thermal.max_coil_temp))
-    return temp, lp, ss
+
+def heat_points(drive: Drive, supply, ambient, r_factor, l_factor, lower_a, upper_a, off_time,
+                delay, label) -> HeatPoints:
+    """The points as :class:`~coildrive.design.thermal_cycle.HeatPoints`: the coil's loss
+    is that of the regulated current, ``rms^2 R(T)`` of the exact switching cycle."""
+    def state(lp):
+        return steady_state(drive, lp, lower_a, upper_a, off_time, delay)
+    return HeatPoints(np.asarray(supply, float), np.asarray(ambient, float), r_factor, l_factor,
+                      {}, label, state)
 
 
 def _tiled(grid: CornerGrid, n: int):
@@ -116,9 +129,10 @@ def _tiled(grid: CornerGrid, n: int):
 
 
 def _smallest_holding(drive: Drive, grid: CornerGrid, codes: np.ndarray, band: int,
-                      off_time: float, delay: float, lsb: float) -> int | None:
+                      off_time: float, delay: float, lsb: float, peak_time: float = 0.0) -> int | None:
     """Smallest code (lower for hysteretic, peak for off-time) whose mean meets the hold
-    current at every corner, regulated everywhere; ``None`` if none of ``codes`` does."""
+    current at every corner, regulated everywhere; ``None`` if none of ``codes`` does
+    (``peak_time``: the peak an on/off cycle heats the coil with, s)."""
     c = len(grid)
     n = codes.size
     sup, amb, rf, lf = _tiled(grid, n)
@@ -126,7 +140,7 @@ def _smallest_holding(drive: Drive, grid: CornerGrid, codes: np.ndarray, band: i
         lo, hi = np.repeat(codes, c) * lsb, np.repeat(codes + band, c) * lsb
     else:
         lo, hi = 0.0, np.repeat(codes, c) * lsb
-    temp, lp, ss = settle(drive, sup, amb, rf, lf, lo, hi, off_time, delay)
+    temp, lp, ss = settle(drive, sup, amb, rf, lf, lo, hi, off_time, delay, peak_time)
     ok = ((ss.mean >= drive.hold.current) & ss.regulated & np.isfinite(temp)).reshape(n, c).all(axis=1)
     idx = np.flatnonzero(ok)
     return int(codes[idx[0]]) if idx.size else None
@@ -179,8 +193,9 @@ def _size_off_time(drive: Drive, grid: CornerGrid, peak_a: float) -> float:
     return float(t[_pick(drive, ss.frequency, ss.regulated)])
 
 
-def choose_thresholds(drive: Drive, grid: CornerGrid) -> Thresholds:
-    """The current-mode setting for ``drive`` (see the module docstring)."""
+def choose_thresholds(drive: Drive, grid: CornerGrid, peak_time: float = 0.0) -> Thresholds:
+    """The current-mode setting for ``drive`` (see the module docstring; ``peak_time``: the
+    peak an on/off cycle heats the coil with, s)."""
     h = drive.hold
     lsb = lsb_current(drive)
     full = 2**drive.board.adc.bits - 1
@@ -194,7 +209,7 @@ def choose_thresholds(drive: Drive, grid: CornerGrid) -> Thresholds:
         code = None
         while code is None and start + band <= full:
             codes = np.arange(start, min(full - band, start + 255) + 1)
-            code = _smallest_holding(drive, grid, codes, band, 0.0, delay, lsb)
+            code = _smallest_holding(drive, grid, codes, band, 0.0, delay, lsb, peak_time)
             start = int(codes[-1]) + 1
         lower = code if code is not None else min(c0, full - band)
         return Thresholds("hysteretic", lsb, lower, lower + band, 0.0, 0, 0, 0.0, delay, sized)
@@ -206,26 +221,30 @@ def choose_thresholds(drive: Drive, grid: CornerGrid) -> Thresholds:
     start, code = c0, None
     while code is None and start <= full:
         codes = np.arange(start, min(full, start + 255) + 1)
-        code = _smallest_holding(drive, grid, codes, 0, off, delay, lsb)
+        code = _smallest_holding(drive, grid, codes, 0, off, delay, lsb, peak_time)
         start = int(codes[-1]) + 1
     peak = code if code is not None else c0
     return Thresholds("off_time", lsb, 0, peak, off, t.prescaler, t.period_ticks, target, delay, sized)
 
 
 def evaluate_current(drive: Drive, th: Thresholds, supply, ambient, r_factor, l_factor,
-                     peak_time) -> tuple[PointResults, CurrentModeSteadyState]:
+                     peak_time, heat_peak: float | None = None
+                     ) -> tuple[PointResults, CurrentModeSteadyState]:
     """Every design figure at the points with the current-mode hold ``th`` (the
     counterpart of :func:`coildrive.design.evaluate.evaluate`; the release starts from the
-    top of the ripple). With split decay the hold (thresholds, switching, heat) takes
+    top of the ripple) after a peak of ``peak_time`` s; ``heat_peak`` (s, default
+    ``peak_time``): the peak an on/off cycle heats the coil with. With split decay the hold (thresholds, switching, heat) takes
     the slow path and the release the fast one, as in voltage mode."""
     supply, ambient, r_factor, l_factor = np.broadcast_arrays(
         *(np.asarray(x, float) for x in (supply, ambient, r_factor, l_factor)))
     lower = th.lower_a if th.control == "hysteretic" else 0.0
     temp, lp, cm = settle(drive, supply, ambient, r_factor, l_factor, lower, th.upper_a,
-                          th.off_time_s, th.delay_s)
+                          th.off_time_s, th.delay_s, peak_time if heat_peak is None else heat_peak)
     ss = cm.as_pwm()
-    t_pull = rise_time(drive.pull_in.current, 0.0, lp.v_on, lp.r_on, lp.inductance)
-    i_peak = rise_current(peak_time, 0.0, lp.v_on, lp.r_on, lp.inductance)
+    # the peak on the drooping bus where [supply] source_resistance is given (the hold's
+    # regulation takes the bus's droop out of the hold)
+    t_pull = bus_rise_time(drive, lp, drive.pull_in.current, lp.inductance)
+    i_peak = bus_rise_current(drive, lp, peak_time, lp.inductance)
     power = ss.rms**2 * lp.r_coil
     i_off = ss.i_max
     if split_decay(drive):
@@ -262,7 +281,7 @@ def _split_saving(drive: Drive, grid: CornerGrid, res: PointResults, cm: Current
     if drive.freewheel.type == "diode" or split_decay(drive):
         return None
     slow, assumed = slow_hold_drive(drive)
-    th = choose_thresholds(slow, grid)
+    th = choose_thresholds(slow, grid, peak_time)
     rs, cms = evaluate_current(slow, th, grid.supply, grid.ambient, grid.r_factor, grid.l_factor,
                                peak_time)
     ls = current_losses(slow, rs, cms)
@@ -299,25 +318,32 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     if samples > 0:
         raise InputError("--samples", "", "the Monte Carlo covers the voltage-mode hold only "
                          "(this drive has hold.mode = \"current\")")
-    refuse_cycle(drive, 'mode = "current"')
     if drive.pull_in.compensate:
         raise InputError(drive.source, "pull_in.compensate", "a supply-compensated peak is "
                          "designed for voltage-mode holds only; leave it out with mode = \"current\"")
     fallback = hold_voltage.design(
         dataclasses.replace(drive, hold=dataclasses.replace(drive.hold, mode="voltage")))
     grid = corner_grid(drive)
-    th = choose_thresholds(drive, grid)
     board = drive.board
-
-    first, _ = evaluate_current(drive, th, grid.supply, grid.ambient, grid.r_factor, grid.l_factor, 0.0)
-    pk = plan_peak(drive, grid, first)
+    # With an on/off cycle the peak heats the coil too: the thresholds and the peak are
+    # chosen again with the peak's length until it no longer grows (as in voltage mode).
+    peak_time = 0.0
+    for _ in range(hold_voltage.MAX_PEAK_ROUNDS):
+        th = choose_thresholds(drive, grid, peak_time)
+        first, _ = evaluate_current(drive, th, grid.supply, grid.ambient, grid.r_factor,
+                                    grid.l_factor, 0.0, heat_peak=peak_time)
+        pk = plan_peak(drive, grid, first)
+        longer = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate
+        if not cycling(drive) or longer <= peak_time:
+            break
+        peak_time = longer
     k_pull = pk.k_pull
-    peak_time = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate
+    heat_peak, peak_time = peak_time, longer
     res, cm = evaluate_current(drive, th, grid.supply, grid.ambient, grid.r_factor, grid.l_factor,
-                               peak_time)
+                               peak_time, heat_peak)
     nom_grid = nominal_point(drive)
     nom, nom_cm = evaluate_current(drive, th, nom_grid.supply, nom_grid.ambient, nom_grid.r_factor,
-                                   nom_grid.l_factor, peak_time)
+                                   nom_grid.l_factor, peak_time, heat_peak)
     # Hold powers at every corner from the exact switching cycle (coil at its settled
     # temperature there), as for the PWM hold.
     loss = current_losses(drive, res, cm)
@@ -330,7 +356,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     hold = HoldResult(
         mode="current", current_a=drive.hold.current, frequency_hz=result.nominal_frequency_hz,
         duty=float(np.max(cm.duty)), compare_ticks=fallback.hold.compare_ticks,
-        current_step_a=th.lsb_a, **hold_spread(grid, res), **loss_figures(drive, grid, loss),
+        current_step_a=th.lsb_a, **_spread(drive, grid, res), **loss_figures(drive, grid, loss),
         split_decay_saving=_split_saving(drive, grid, res, cm, loss, fallback, peak_time),
         current_mode=result, thresholds=th, regulation="current")
     thresholds = adc_thresholds(drive, res, res, hold.min_mean_current_a, grid)
@@ -355,6 +381,17 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     notes = cautions(drive, hold, release) + loss_cautions(drive, hold, release, split)
     topo = topology_result(drive, grid, res, res.peak_end_current, thresholds.trip_current_a)
     notes += topology_cautions(drive, topo)
+    lower = th.lower_a if th.control == "hysteretic" else 0.0
+    thermal = cycle_result(drive, heat_points(drive, grid.supply, grid.ambient, grid.r_factor,
+                                              grid.l_factor, lower, th.upper_a, th.off_time_s,
+                                              th.delay_s, grid.label),
+                           heat_peak, offs, hold.freewheel_power_w, hold.freewheel_elements_w)
+    checks += thermal_checks(drive, pull_in.peak_time_s, thermal)
+    sup = drooping_bus(drive, grid, res, pk.long_time, cm.duty, thresholds)
+    checks += supply_checks(sup)
+    if thermal is not None and thermal.cycle is not None:
+        notes[2] = cycle_caution(thermal)   # the envelope's hot coil is the cycle's
+    notes += thermal_cautions(thermal)
     points = tuple(
         hold_voltage.plot_point(drive, name, label, r, k, min(max(2.0 * peak_time, 20.0 * (
             float(r.hold.period[k]) if np.isfinite(r.hold.period[k]) else 1e-4)), 2000.0 * (
@@ -364,9 +401,31 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     return dataclasses.replace(
         fallback, drive=drive, pull_in=pull_in, hold=hold, release=release, adc=thresholds,
         split_decay=split, corners=corners, nominal=nominal, checks=checks, cautions=notes,
-        actuation_points=points, topology=topo, input_hash=drive.input_hash(), worst_corner_index=k_pull,
+        actuation_points=points, topology=topo, thermal_cycle=thermal, supply=sup, input_hash=drive.input_hash(), worst_corner_index=k_pull,
         rise_check=rise_check(drive, grid, res, fallback.timer.frequency_hz),
         seat_check=seat_check(drive, grid, res))
+
+
+def drooping_bus(drive: Drive, grid, res: PointResults, peak_time, duty, thresholds):
+    """The supply's figures (:func:`coildrive.design.supply.supply_result`) of a hold that
+    regulates its current: the peak of ``peak_time`` s on the drooping bus at the points of
+    ``res``, the hold's switch-on fraction ``duty`` for its capacitor ripple; the firmware
+    reads the bus through the board's supply sense as for the voltage-mode hold."""
+    b = drive.board
+    sense = b.supply_sense
+
+    def read(volts):
+        return adc_code(volts / sense.divider, b.adc.reference, b.adc.bits)
+    return supply_result(drive, grid, res, peak_time, duty, read, thresholds.supply_min_code)
+
+
+def _spread(drive: Drive, grid: CornerGrid, res: PointResults) -> dict:
+    """:func:`~coildrive.design.figures.hold_spread`, its hottest corner naming the on/off
+    cycle when the envelope takes the cycle's hottest coil."""
+    out = hold_spread(grid, res)
+    if cycling(drive):
+        out["hottest_corner"] += f", the hottest over the on/off cycle {out['coil_temp_c']:.4g} degC"
+    return out
 
 
 def _mode_result(drive: Drive, th: Thresholds, grid: CornerGrid, cm: CurrentModeSteadyState,
@@ -513,7 +572,7 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
         ons.append(np.zeros_like(t))
         return t0 + dur, float(cs[-1][-1])
 
-    t, i = peak_time, peak_samples(peak_time, v, r_on, ind, big, ts, cs, ons)
+    t, i = peak_time, peak_samples(peak_time, v, r_on, ind, big, ts, cs, ons, drive)
     end = peak_time + hold_time
     regulated = upper < a
     first = True

@@ -13,6 +13,7 @@ import numpy as np
 
 from ..config import Drive
 from ..model import rl
+from ..model.circuit import split_decay
 from ..model import supply as bus_model
 from . import boost
 from .result import Check, SupplyResult
@@ -20,6 +21,15 @@ from .result import Check, SupplyResult
 #: How the hold's capacitor ripple current is approximated (shown in the JSON and docs).
 RIPPLE_METHOD = ("coil current flat at its hold mean while on; the source gives the average, "
                  "the capacitor the rest: mean x sqrt(D (1 - D))")
+#: ... and with a clamp across the switch, whose off-times draw from the bus too.
+CLAMP_RIPPLE_METHOD = ("the bus draws the coil current on and off (switch, then clamp); the source "
+                       "gives the average, the capacitor the coil's ripple: ripple / (2 sqrt 3)")
+
+
+def through_clamp(drive: Drive) -> bool:
+    """True when the coil decays through a clamp across the switch, drawing from the bus:
+    at the release always, in the hold's off-times unless split decay bypasses it."""
+    return drive.freewheel.type == "clamp"
 
 
 def _bus(drive: Drive, lp, inductance) -> bus_model.Bus:
@@ -59,19 +69,39 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
     the hold duty ``duty`` at each point): the lowest bus during the peak and its corner,
     the energy the capacitor gives up down to it, the capacitor's RMS ripple current in the
     hold, and the firmware's reading of the lowest bus (``read(volts)`` -> code, the way its
-    supply-min code was made) against that code. ``None`` without a source resistance."""
+    supply-min code was made) against that code. ``None`` without a source resistance.
+
+    With a clamp across the switch (:func:`through_clamp`) the coil keeps drawing from the
+    bus after the peak: the lowest bus is also taken at the floor
+    :func:`~coildrive.model.supply.bus_floor` of the current after the peak (the end of the
+    peak's, or the hold's top if higher), and without split decay the hold's off-times draw
+    from the bus too (the hold's bus sits ``R_s`` x the mean low; the capacitor carries the
+    coil's ripple)."""
     s = drive.supply
     if not s.droops:
         return None
     lp = res.loop
     b = _bus(drive, lp, lp.inductance)
-    v_low, when = bus_model.lowest_bus(np.broadcast_to(peak_time, lp.v_on.shape), b)
+    peak = np.broadcast_to(peak_time, lp.v_on.shape)
+    v_low, when = bus_model.lowest_bus(peak, b)
+    clamp = through_clamp(drive)
+    if clamp:
+        i_top = np.maximum(bus_model.current(peak, b), res.hold.i_max)
+        floor = bus_model.bus_floor(lp.v_on, s.source_resistance, i_top)
+        later = floor < v_low
+        v_low, when = np.where(later, floor, v_low), np.where(later, peak, when)
     k = int(np.argmin(v_low))
     energy = bus_model.capacitor_energy(s.capacitance, lp.v_on, v_low)
     k_e = int(np.argmax(energy))
-    ripple = bus_model.hold_ripple_current(res.hold.mean, np.broadcast_to(duty, lp.v_on.shape))
+    on_share = np.broadcast_to(duty, lp.v_on.shape)
+    off_draws = clamp and not split_decay(drive)   # the hold's off-times through the clamp
+    if off_draws:
+        ripple = bus_model.clamp_hold_ripple_current(res.hold.ripple)
+        on_share = np.ones_like(on_share)
+    else:
+        ripple = bus_model.hold_ripple_current(res.hold.mean, on_share)
     k_r = int(np.argmax(ripple))
-    hold_droop = s.source_resistance * np.asarray(res.hold.mean, float) * np.broadcast_to(duty, lp.v_on.shape)
+    hold_droop = s.source_resistance * np.asarray(res.hold.mean, float) * on_share
     code = read(float(v_low[k])) if drive.board.supply_sense else None
     return SupplyResult(
         source_resistance_ohm=s.source_resistance, capacitance_f=s.capacitance,
@@ -79,7 +109,7 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
         droop_v=float(lp.v_on[k] - v_low[k]), lowest_bus_code=code,
         supply_min_code=supply_min_code if drive.board.supply_sense else None,
         capacitor_energy_j=float(energy[k_e]), capacitor_energy_corner=grid.label(k_e),
-        ripple_current_a=float(ripple[k_r]), ripple_corner=grid.label(k_r), ripple_method=RIPPLE_METHOD,
+        ripple_current_a=float(ripple[k_r]), ripple_corner=grid.label(k_r), ripple_method=CLAMP_RIPPLE_METHOD if off_draws else RIPPLE_METHOD,
         hold_droop_v=float(np.max(hold_droop)))
 
 

@@ -17,6 +17,8 @@ x the actuation rate. Units: s, W, J, J/K, degC.
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
+from typing import Callable
 
 import numpy as np
 
@@ -26,7 +28,7 @@ from ..model.pwm import pwm_steady_state
 from ..model.rl import decay_integrals, decay_time, rise_integrals
 from ..model.thermal_cycle import chord, cycle_steady_state, heating, time_to_rise
 from ..units import format_si
-from .evaluate import hold_power, hold_temperature
+from ..model.thermal import settle_temperature
 from .result import ELEMENT_NAMES, Check, ThermalCycleResult
 
 
@@ -34,20 +36,6 @@ def cycling(drive: Drive) -> bool:
     """True when the file gives an on/off cycle and a heat capacity: the envelope then
     takes the hottest coil over the cycle."""
     return drive.duty is not None and drive.thermal.capacity > 0 and drive.thermal.resistance > 0
-
-
-def refuse_cycle(drive: Drive, hold: str) -> None:
-    """Raise an :class:`~coildrive.errors.InputError` when ``drive`` gives an on/off cycle
-    or a heat capacity to a hold whose design does not model them (``hold``: the setting
-    that names that hold, e.g. ``mode = "current"``)."""
-    from ..errors import InputError
-
-    for key, given in (("duty", drive.duty is not None),
-                       ("thermal.capacity", drive.thermal.capacity > 0)):
-        if given:
-            raise InputError(drive.source, key, "an on/off cycle's coil temperature is modelled "
-                             "for the fixed and supply-table holds only; leave [duty] and "
-                             f"thermal.capacity / time_constant out with {hold}")
 
 
 def peak_inductance(drive: Drive, lp):
@@ -60,23 +48,35 @@ def peak_inductance(drive: Drive, lp):
     return lp.inductance * drive.armature.inductance_open / drive.armature.inductance_closed
 
 
+def pwm_state(duty, frequency):
+    """The voltage-mode hold's steady state at a loop: the PWM orbit at ``duty`` (a
+    function of the loop, for :func:`on_energies`)."""
+    def state(lp):
+        return pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
+                                lp.inductance, mixed=lp.mixed)
+    return state
+
+
 def on_energies(drive: Drive, supply, r_factor, l_factor, duty, frequency, factors: dict,
-                peak_time):
+                peak_time, state=None):
     """A function of the coil temperature (degC, array) giving the coil's copper heat of
     one actuation, ``(peak J, hold J, release J)``: the peak full on from zero for
     ``min(peak_time, on_time)`` s (through :func:`peak_inductance`; ``peak_time`` may be
     an array over the points), the hold's periodic steady state for the rest of the
     on-time, the release from the top of the hold ripple to zero through the hold's
     freewheel path (with split decay the slow one: the longer decay, the more heat; a full
-    bridge's release path, as its hold path never reaches zero)."""
+    bridge's release path, as its hold path never reaches zero). ``state``: the hold's
+    steady state as a function of the loop (anything with ``rms`` and ``i_max`` A; the
+    current-mode and closed-loop holds give their own regulated orbit), by default the
+    PWM orbit at ``duty``/``frequency``."""
+    state = state or pwm_state(duty, frequency)
     t_on = drive.duty.on_time
     t_pk = np.minimum(peak_time, t_on)
     t_hold = t_on - t_pk
 
     def at(temp):
         lp = loop(drive, supply, temp, r_factor, l_factor, **factors)
-        ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance,
-                              mixed=lp.mixed)
+        ss = state(lp)
         _, s_pk = rise_integrals(t_pk, 0.0, lp.v_on, lp.r_on, peak_inductance(drive, lp))
         # a full bridge's hold path (slow decay, no opposing voltage) never brings the
         # current to zero: its release is the fast decay into the bus
@@ -89,12 +89,12 @@ def on_energies(drive: Drive, supply, r_factor, l_factor, duty, frequency, facto
 
 
 def cycle_states(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
-                 factors: dict | None = None, peak_time=0.0):
+                 factors: dict | None = None, peak_time=0.0, state=None):
     """The cycle's periodic steady state at each point
     (:class:`~coildrive.model.thermal_cycle.CycleState`): the on-time's mean power is the
     actuation's copper heat (:func:`on_energies`) over ``duty.on_time``."""
     energies = on_energies(drive, supply, r_factor, l_factor, duty, frequency, factors or {},
-                           peak_time)
+                           peak_time, state)
     t_on = drive.duty.on_time
 
     def power_at(temp):
@@ -127,28 +127,69 @@ def _start(drive: Drive, power_at, peak_at, start, ambient, label):
             "corner": label(k)}
 
 
+@dataclass(frozen=True)
+class HeatPoints:
+    """Where the coil heats and the hold it runs there: parallel arrays (V, degC,
+    tolerance factors), the loop's other tolerance factors, a label per point, and the
+    hold's steady state as a function of the loop (``rms``, ``i_max`` A)."""
+
+    supply: np.ndarray
+    ambient: np.ndarray
+    r_factor: np.ndarray
+    l_factor: np.ndarray
+    factors: dict
+    label: Callable[[int], str]
+    state: Callable
+
+    def power(self, drive: Drive):
+        """The hold's coil loss (W) as a function of the coil temperature (degC)."""
+        def power_at(temp):
+            lp = loop(drive, self.supply, temp, self.r_factor, self.l_factor, **self.factors)
+            return self.state(lp).rms**2 * lp.r_coil
+        return power_at
+
+    def cycle(self, drive: Drive, peak_time):
+        """The on/off cycle's periodic steady state here (:func:`cycle_states`)."""
+        return cycle_states(drive, self.supply, self.ambient, self.r_factor, self.l_factor, None,
+                            None, self.factors, peak_time, self.state)
+
+    def temperature(self, drive: Drive, peak_time=0.0):
+        """The coil temperature (degC, ``inf`` on a runaway) the envelope takes here: the
+        hottest over the on/off cycle when :func:`cycling`, else after a long hold."""
+        if cycling(drive):
+            return self.cycle(drive, peak_time).hottest
+        return settle_temperature(self.ambient, drive.thermal.resistance, self.power(drive))
+
+
 def thermal_result(drive: Drive, plan, frequency: float, period: int, peak_time: float,
                    offs: list[dict], hold_freewheel_w: float,
                    hold_elements_w: dict) -> ThermalCycleResult | None:
-    """The ``thermal_cycle`` result of a voltage-mode design (``None`` without ``[duty]``
-    and ``thermal.capacity``): ``plan`` is the solved hold
-    (:class:`~coildrive.design.regulation.HoldPlan`, its heating points), ``offs`` the
-    turn-offs (:func:`coildrive.design.turnoff.turn_offs`), ``hold_freewheel_w`` the
-    freewheel path's hold power at its worst corner and ``hold_elements_w`` each
-    element's (W)."""
+    """The ``thermal_cycle`` result of a voltage-mode design: ``plan`` is the solved hold
+    (:class:`~coildrive.design.regulation.HoldPlan`, its heating points); the rest as
+    :func:`cycle_result`."""
+    heat = plan.heat
+    factors = {"diode_factor": heat.tol.diode_factor, "fast_factor": heat.tol.fast_factor,
+               "sense_factor": heat.tol.sense_factor}
+    pts = HeatPoints(heat.supply, heat.ambient, heat.tol.r_factor, heat.tol.l_factor, factors,
+                     heat.label, pwm_state(plan.heat_compare / period, frequency))
+    return cycle_result(drive, pts, peak_time, offs, hold_freewheel_w, hold_elements_w)
+
+
+def cycle_result(drive: Drive, pts: HeatPoints, peak_time: float, offs: list[dict],
+                 hold_freewheel_w: float, hold_elements_w: dict) -> ThermalCycleResult | None:
+    """The ``thermal_cycle`` result of a design (``None`` without ``[duty]`` and
+    ``thermal.capacity``): ``pts`` the heating points and the hold the firmware runs there
+    (:class:`HeatPoints`), ``peak_time`` (s) the peak phase, ``offs`` the turn-offs
+    (:func:`coildrive.design.turnoff.turn_offs`), ``hold_freewheel_w`` the freewheel
+    path's hold power at its worst corner and ``hold_elements_w`` each element's (W)."""
     th, cyc = drive.thermal, drive.duty
     if cyc is None and th.capacity <= 0:
         return None
-    heat = plan.heat
-    duty = plan.heat_compare / period
-    factors = {"diode_factor": heat.tol.diode_factor, "fast_factor": heat.tol.fast_factor,
-               "sense_factor": heat.tol.sense_factor}
-    args = (drive, heat.supply, heat.tol.r_factor, heat.tol.l_factor, duty, frequency, factors)
-    continuous = hold_temperature(drive, heat.supply, heat.ambient, heat.tol.r_factor,
-                                  heat.tol.l_factor, duty, frequency, factors)
+    power_at = pts.power(drive)
+    continuous = settle_temperature(pts.ambient, th.resistance, power_at)
     k_cont = int(np.argmax(np.where(np.isfinite(continuous), continuous, np.inf)))
     out = dict(max_coil_temp_c=th.max_coil_temp, continuous_hold_c=float(continuous[k_cont]),
-               continuous_hold_corner=heat.label(k_cont), capacity_j_k=None, time_constant_s=None,
+               continuous_hold_corner=pts.label(k_cont), capacity_j_k=None, time_constant_s=None,
                on_time_s=None, off_time_s=None, actuation_rate_hz=None, cycle=None,
                freewheel=None, cold_start=None, warm_start=None)
     if cyc is not None:
@@ -170,29 +211,27 @@ def thermal_result(drive: Drive, plan, frequency: float, period: int, peak_time:
     if th.capacity <= 0 or th.resistance <= 0:
         return ThermalCycleResult(**out)
     out.update(capacity_j_k=th.capacity, time_constant_s=th.time_constant)
-    peak = on_energies(*args, peak_time=peak_time) if cyc is not None else None
-    power_at = hold_power(drive, heat.supply, heat.tol.r_factor, heat.tol.l_factor, duty,
-                          frequency, factors)
+    peak = on_energies(drive, pts.supply, pts.r_factor, pts.l_factor, None, None, pts.factors,
+                       peak_time, pts.state) if cyc is not None else None
 
     def peak_heat(temp):   # the peak's copper heat (J), full on from zero for the peak time
-        lp = loop(drive, heat.supply, temp, heat.tol.r_factor, heat.tol.l_factor, **factors)
+        lp = loop(drive, pts.supply, temp, pts.r_factor, pts.l_factor, **pts.factors)
         _, s_pk = rise_integrals(peak_time, 0.0, lp.v_on, lp.r_on, peak_inductance(drive, lp))
         return lp.r_coil * s_pk
-    out["cold_start"] = _start(drive, power_at, peak_heat, heat.ambient.copy(), heat.ambient,
-                               heat.label)
+    out["cold_start"] = _start(drive, power_at, peak_heat, pts.ambient.copy(), pts.ambient,
+                               pts.label)
     if cyc is not None:
-        st = cycle_states(drive, heat.supply, heat.ambient, heat.tol.r_factor, heat.tol.l_factor,
-                          duty, frequency, factors, peak_time)
+        st = pts.cycle(drive, peak_time)
         k = int(np.argmax(np.where(np.isfinite(st.hottest), st.hottest, np.inf)))
         e_pk, e_hold, e_rel = (float(np.asarray(e)[k]) for e in peak(
             np.where(np.isfinite(st.hottest), st.hottest, th.max_coil_temp)))
         out["cycle"] = {
             "hottest_c": float(st.hottest[k]), "coolest_c": float(st.coolest[k]),
-            "corner": heat.label(k), "on_power_w": float(st.heat[k] + st.slope[k] * (
-                (st.hottest[k] if math.isfinite(st.hottest[k]) else th.max_coil_temp) - heat.ambient[k])),
+            "corner": pts.label(k), "on_power_w": float(st.heat[k] + st.slope[k] * (
+                (st.hottest[k] if math.isfinite(st.hottest[k]) else th.max_coil_temp) - pts.ambient[k])),
             "peak_energy_j": e_pk, "hold_energy_j": e_hold, "release_energy_j": e_rel,
         }
-        out["warm_start"] = _start(drive, power_at, peak_heat, st.coolest, heat.ambient, heat.label)
+        out["warm_start"] = _start(drive, power_at, peak_heat, st.coolest, pts.ambient, pts.label)
     return ThermalCycleResult(**out)
 
 

@@ -148,3 +148,22 @@ def hold_ripple_current(mean, duty) -> np.ndarray:
     is ``mean * sqrt(D (1 - D))``."""
     d = np.asarray(duty, float)
     return np.asarray(mean, float) * np.sqrt(np.clip(d * (1.0 - d), 0.0, None))
+
+
+def bus_floor(v_s, r_s, i_top) -> np.ndarray:
+    """A floor (V) under the bus while the coil draws at most ``i_top`` A from it: if
+    ``v < V_s - R_s i_top`` the source's current ``(V_s - v)/R_s`` exceeds the coil's and
+    ``C dv/dt > 0``, so the bus never falls below ``min(v(t0), V_s - R_s i_top)`` after a
+    moment ``t0`` from which the coil's current stays at or under ``i_top``. With a clamp
+    across the switch the coil keeps drawing from the bus after the peak (the hold's
+    off-times, the release); the current falls from the end of the peak, so this bounds
+    the bus from below from then on (``V_s`` V, ``R_s`` ohm)."""
+    return np.asarray(v_s, float) - np.asarray(r_s, float) * np.asarray(i_top, float)
+
+
+def clamp_hold_ripple_current(ripple) -> np.ndarray:
+    """RMS (A) of the capacitor's current in a hold whose off-times decay through a clamp
+    across the switch: the bus draws the coil current all the time (the switch in the
+    on-time, the clamp in the off-time), the source gives its average and the capacitor
+    its ripple, a triangle of ``ripple`` A peak to peak: ``ripple / (2 sqrt(3))``."""
+    return np.asarray(ripple, float) / (2.0 * np.sqrt(3.0))
