@@ -198,12 +198,15 @@ def _monotone(drive: Drive, tol: Tolerances, hot: np.ndarray, design_v: np.ndarr
     it carries at the bottom of the entry below. Without this the whole-count rounding of
     each entry alone lets the current dip by up to a count at a step."""
     out = compares.copy()
+    # each entry's lowest supply in the envelope: the first entry is designed at or below
+    # supply.min (its code's bottom may lie lower), but the firmware serves it from there
+    bottom = np.maximum(design_v, drive.supply.min)
     temps = np.concatenate([np.full(len(tol), float(drive.ambient.min)), _finite(drive, hot)])
     k = np.concatenate([np.arange(len(tol)), np.arange(len(tol))])
     t = tol.take(k)
 
     def mean(i: int, c: int) -> np.ndarray:
-        lp = loop(drive, design_v[i] + 0.0 * temps, temps, t.r_factor, t.l_factor, **_factors(t))
+        lp = loop(drive, bottom[i] + 0.0 * temps, temps, t.r_factor, t.l_factor, **_factors(t))
         return pwm_steady_state(c / period, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
                                 lp.inductance, mixed=lp.mixed).mean
     below = mean(0, int(out[0]))
