@@ -170,6 +170,8 @@ def check_latch_capture(capture: Capture, design, tolerances: Tolerances | None 
         raise InputError(capture.source, "", f"holds no complete pulse: {cut[-1].partial} (nothing to check; "
                          "capture at least one whole pulse, from idle to idle)")
     notes = [f"{p.partial}: it is reported but left out of the check" for p in cut]
+    if capture.meta.board is not None and capture.meta.board != board.name:
+        notes.insert(0, f"the capture says board {capture.meta.board!r}, the drive uses {board.name!r}")
     fs, apc = a.sample_rate_hz, a.amps_per_code
     period, tick = 1.0 / fs, 1.0 / board.tick.rate
     items = [CheckItem("pulses", PASS if done else FAIL, float(len(done)), None, None, None, "",
