@@ -8,7 +8,9 @@ pulse's end against ``i = V/R (1 - e^(-t R/L))`` (the RL step, any circuits text
 Hayt & Kemmerly, *Engineering Circuit Analysis*, the source-driven RL circuit) with the
 design's R and L at the capture's temperature (copper's R(T), IEC 60028 annealed copper,
 alpha = 0.00393 /K), and on the relay's drooping bus against scipy's ``solve_ivp`` of the
-source, its resistance, the capacitor and the coil.
+source, its resistance, the capacitor and the coil; the time to zero after a bridge's
+pulse against the closed form of its fast decay, ``L di/dt = -((R_coil + R_sense) i + V_bus
++ 2 V_diode)`` (docs/design-method.md, the same RL step with a constant opposing voltage).
 """
 
 from __future__ import annotations
@@ -19,12 +21,14 @@ import math
 import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
+from typer.testing import CliRunner
 
 from conftest import EXAMPLES, run_cli
 from test_emulator_device import capture_of, run as run_device
 from coildrive.bench.device import DeviceOptions
 from coildrive.bench.latch_check import check_latch_capture, predict_pulse
 from coildrive.bench.latch_device import LatchDevice
+from coildrive.cli import app
 from coildrive.config import load_drive
 from coildrive.design.latch import design_latch
 
@@ -57,17 +61,23 @@ def test_both_examples_pass_and_a_coil_with_more_resistance_fails(tmp_path, path
         [(i.name, i.status) for i in bad.items]
 
 
-def test_the_predicted_pulse_end_current_is_the_rl_step_written_afresh():
+def test_the_predicted_pulse_end_current_and_decay_are_the_rl_steps_written_afresh():
     # bridge, stiff bus: V / R (1 - exp(-t R / L)), R = R_coil(T) + 2 R_switch + R_sense
     d = design_latch(load_drive(BRIDGE))
     drv = d.drive
     v, temp = 9.0, 100.0
     r = (drv.coil.resistance * (1 + ALPHA * (temp - drv.coil.reference_temp))
          + 2 * drv.switch.on_resistance + drv.board.sense.resistance)
+    # the fast decay after it (design-method.md, the bridge's fast decay): L di/dt =
+    # -((R_coil + R_sense) i + V_bus + 2 V_diode), so t = L/R ln((R i0 + V) / (R i1 + V))
+    r_fast = r - 2 * drv.switch.on_resistance
+    v_fast = v + 2 * drv.freewheel.diode_drop
     for p in d.latch.pulses:
         fresh = v / r * (1 - math.exp(-p.time_s * r / drv.coil.inductance))
-        got = predict_pulse(d, p.name, v, temp, 1e-3, 1e-3)["end_current_a"]
-        assert got == pytest.approx(fresh, rel=1e-3), (p.name, got, fresh)
+        pred = predict_pulse(d, p.name, v, temp, 2e-3, 1e-3)
+        assert pred["end_current_a"] == pytest.approx(fresh, rel=1e-3), (p.name, pred, fresh)
+        t_fresh = drv.coil.inductance / r_fast * math.log((r_fast * fresh + v_fast) / (r_fast * 2e-3 + v_fast))
+        assert pred["time_to_zero_s"] == pytest.approx(t_fresh, rel=1e-3), (p.name, pred, t_fresh)
     # relay, drooping bus (source V_s behind R_s into C; the winding from C): solve_ivp
     d = design_latch(load_drive(RELAY))
     drv = d.drive
@@ -97,10 +107,18 @@ def test_a_pulse_the_capture_cut_is_reported_incomplete(tmp_path):
     assert report.ok, [(i.name, i.detail) for i in report.items]
 
 
-def test_a_period_shorter_than_the_designed_interval_is_refused_in_one_line():
+def test_what_a_latch_cannot_take_is_refused_in_one_line(tmp_path):
     r = run_cli("emulate", str(RELAY), "--period", "0.05 s", "--duration", "0.1")
     assert r.returncode == 2 and "--period" in r.stderr and "interval" in r.stderr, r.stderr
     assert len(r.stderr.strip().splitlines()) == 1
+    d = design_latch(load_drive(RELAY))
+    cap = tmp_path / "relay.cdcap"
+    _capture(tmp_path, d, "relay")
+    for args, where in ((["--supply", "24", "--plot", str(tmp_path / "p.png")], "--plot"),
+                        ([], "--supply")):     # the 24 V bus is above the divider's 20 V
+        res = CliRunner().invoke(app, ["check", str(cap), str(RELAY), *args])
+        assert res.exit_code == 2 and where in res.stderr, (args, res.stderr)
+        assert len(res.stderr.strip().splitlines()) == 1 and not (tmp_path / "p.png").exists()
 
 
 @pytest.mark.slow
