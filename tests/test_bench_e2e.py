@@ -80,6 +80,20 @@ def capture_from(tmp_path, name, *emulate_args: str):
     return out
 
 
+def emulate_capture_check(drive, out, *emulate_args: str):
+    """`emulate` DRIVE with ``emulate_args``, `capture` two actuations (or pulses) to
+    ``out``, `check` it: the check's process result and its rows by name."""
+    emu = Emulator(drive, *emulate_args)
+    try:
+        r = run_cli("capture", emu.path, "--drive", str(drive), "--out", str(out), "--actuations", "2",
+                    timeout=TIMEOUT)
+    finally:
+        emu.stop()
+    assert r.returncode == 0 and "2 actuation(s)" in r.stderr, r.stderr
+    r = run_cli("check", str(out), str(drive), "--json")
+    return r, {i["name"]: i["status"] for i in json.loads(r.stdout)["items"]}
+
+
 def check_rows(capture):
     r = run_cli("check", str(capture), str(LATCH), "--json")
     assert r.returncode in (0, 1), r.stderr
@@ -146,15 +160,6 @@ def test_other_topologies_emulate_capture_and_pass_check(tmp_path, example):
     # its coil-path sense resistor (the same two sense positions as a low-side board; the
     # bridge's release decays fast into the bus), and check passes.
     drive = EXAMPLES / f"{example}.toml"
-    out = tmp_path / "act.cdcap"
-    emu = Emulator(drive, "--noise", "1", "--seed", "7")
-    try:
-        r = run_cli("capture", emu.path, "--drive", str(drive), "--out", str(out), "--actuations", "2",
-                    timeout=TIMEOUT)
-    finally:
-        emu.stop()
-    assert r.returncode == 0 and "2 actuation(s)" in r.stderr, r.stderr
-    r = run_cli("check", str(out), str(drive), "--json")
-    rows = {i["name"]: i["status"] for i in json.loads(r.stdout)["items"]}
+    r, rows = emulate_capture_check(drive, tmp_path / "act.cdcap", "--noise", "1", "--seed", "7")
     assert r.returncode == 0, rows
     assert rows["release_time"] == "pass" and rows["hold_mean"] == "pass", rows

@@ -54,7 +54,10 @@ class Tolerances:
     * ``peak_duration`` 5 %: firmware timing, set by the scheduler tick;
     * ``hold_mean`` 10 %: the hold current the armature needs has margin in it;
     * ``hold_ripple`` 30 %: ripple goes as 1/L, and L varies most;
-    * ``release_time`` 20 %: the freewheel path's parts vary more than the coil.
+    * ``release_time`` 20 %: the freewheel path's parts vary more than the coil (a
+      latching coil's time to zero after each pulse too);
+    * ``pulse_current`` 10 %: a latching coil's current at the end of each pulse (like the
+      hold mean: the pulse's force has margin in it).
     """
 
     pull_in_time: float = 0.15
@@ -63,6 +66,7 @@ class Tolerances:
     hold_mean: float = 0.10
     hold_ripple: float = 0.30
     release_time: float = 0.20
+    pulse_current: float = 0.10
 
     def __post_init__(self) -> None:
         for f in dataclasses.fields(self):

@@ -302,11 +302,7 @@ class VirtualDevice(LineOutput):
         if not design.pull_in.peak_ticks:
             raise ValueError("the design has no peak phase (the pull-in current is never reached)")
         board = drive.board
-        self.sample_rate = float(board.adc.sample_rate)
-        self.baud = int(options.baud or board.link.baud)
-        self.byte_time = BITS_PER_BYTE / self.baud
-        self.tick_rate = float(board.tick.rate)
-        self.supply, self.coil_temp = operating_point(drive, options.supply, options.coil_temp)
+        self._set_board(drive, options)
         from ..design import firmware_setting  # the compare and peak its firmware runs at this supply
 
         duty, peak = firmware_setting(design, self.supply, self.coil_temp)
@@ -321,11 +317,30 @@ class VirtualDevice(LineOutput):
             ticks = design.pull_in.peak_ticks
         self.settings = Settings(ticks, design.timer.prescaler,
                                  design.timer.period_ticks, round(duty * design.timer.period_ticks))
+        self.info = self._make_info(drive.armature is not None)
+        self._start_line(options)
+
+    def _set_board(self, drive: Drive, options: DeviceOptions) -> None:
+        """The board's clocks and line rate, and the bench point (supply V, coil degC)."""
+        board = drive.board
+        self.sample_rate = float(board.adc.sample_rate)
+        self.baud = int(options.baud or board.link.baud)
+        self.byte_time = BITS_PER_BYTE / self.baud
+        self.tick_rate = float(board.tick.rate)
+        self.supply, self.coil_temp = operating_point(drive, options.supply, options.coil_temp)
+
+    def _make_info(self, has_position_switch: bool) -> Info:
+        """The INFO frame: sample rate, ADC bits and scaling, firmware id."""
+        board = self.drive.board
         rate = Fraction(self.sample_rate).limit_denominator(2**32 - 1)
-        _, apc = adc_scaling(drive)
-        self.info = Info(rate.numerator, rate.denominator, board.adc.bits, apc, 0,
-                         f"coildrive emulate {drive.name} on {board.name}"[:64],
-                         has_position_switch=drive.armature is not None)
+        _, apc = adc_scaling(self.drive)
+        return Info(rate.numerator, rate.denominator, board.adc.bits, apc, 0,
+                    f"coildrive emulate {self.drive.name} on {board.name}"[:64],
+                    has_position_switch=has_position_switch)
+
+    def _start_line(self, options: DeviceOptions) -> None:
+        """The line, the queues and the automatic actuations, as at start (after
+        ``sample_rate``, ``byte_time`` and ``info`` are set)."""
         self.stats = DeviceStats()
         self.sent: list[SentFrame] = []
         self.damaged: list[DamagedFrame] = []
@@ -504,11 +519,7 @@ class VirtualDevice(LineOutput):
         """The model actuation for (peak s, duty, frequency Hz, hold s), cached."""
         w = self._cache.get(key)
         if w is None:
-            o = self.options
-            peak, duty, freq, hold = key
-            w = actuation_waveform(self.drive, self.supply, self.coil_temp, peak, duty, freq, hold,
-                                   resistance_scale=o.resistance_scale,
-                                   inductance_scale=o.inductance_scale, fault=o.fault)
+            w = self._make_waveform(key)
             self._cache[key] = w
             while len(self._cache) > 16:
                 self._cache.popitem(last=False)
@@ -516,9 +527,20 @@ class VirtualDevice(LineOutput):
             self._cache.move_to_end(key)
         return w
 
+    def _make_waveform(self, key: tuple):
+        """The model actuation for (peak s, duty, frequency Hz, hold s)."""
+        o = self.options
+        peak, duty, freq, hold = key
+        return actuation_waveform(self.drive, self.supply, self.coil_temp, peak, duty, freq, hold,
+                                  resistance_scale=o.resistance_scale,
+                                  inductance_scale=o.inductance_scale, fault=o.fault)
+
     def _recording_span(self, hold_time: float) -> float:
         """s from the start of a recording to the end of its stream, at the settings in force."""
-        w = self._waveform((self.peak_time, self.duty, self.frequency, hold_time))
+        return self._span_of(self._waveform((self.peak_time, self.duty, self.frequency, hold_time)))
+
+    def _span_of(self, w) -> float:
+        """s from the start of the recording of waveform ``w`` to the end of its stream."""
         length = self.options.pre_trigger + float(w.time[-1]) + self.options.post_margin
         samples = length * self.sample_rate
         per = self.options.samples_per_frame
@@ -527,9 +549,12 @@ class VirtualDevice(LineOutput):
         return max(length, wire * self.byte_time) + length
 
     def _start(self, now: float, hold_time: float) -> None:
+        self._record(now, (self.peak_time, self.duty, self.frequency, hold_time))
+
+    def _record(self, now: float, key: tuple) -> None:
+        """Start the actuation of the waveform ``key`` at ``now`` s and plan its recording."""
         self._count += 1
         self.stats.actuations += 1
-        key = (self.peak_time, self.duty, self.frequency, hold_time)
         k_on = first_sample_at_or_after(now, self.sample_rate)
         k_start = max(self._stream_end, k_on - int(round(self.options.pre_trigger * self.sample_rate)))
         rec = _Recording(self._count, now, key, self._waveform(key), self._stream_end, k_start)
@@ -537,6 +562,10 @@ class VirtualDevice(LineOutput):
         self._logged_on = self._logged_off = False
         for item in self._plan(rec):
             self._queue(item)
+
+    def _start_automatic(self, now: float) -> None:
+        """An automatic actuation at ``now`` s."""
+        self._start(now, self.options.hold_time)
 
     def _stop(self, now: float) -> None:
         """STOP at ``now``: in the peak the switch opens at once; in the hold at the end of
@@ -555,6 +584,11 @@ class VirtualDevice(LineOutput):
             key = (peak, duty, freq, periods / freq)
             if abs(periods / freq - rec.key[3]) * freq < 0.5:
                 return
+        self._replan(rec, key, now)
+
+    def _replan(self, rec: _Recording, key: tuple, now: float) -> None:
+        """A recording cut at ``now`` s: its waveform becomes ``key``'s, and the frames not
+        sent by then are planned again."""
         rec.stopped = True
         rec.key = key
         rec.w = self._waveform(key)
@@ -577,7 +611,7 @@ class VirtualDevice(LineOutput):
         t_rel = k / fs - rec.t_on
         inside = (t_rel >= 0) & (t_rel <= length)
         current = np.zeros(k.size)
-        current[inside] = sense_current(self.drive, w, t_rel[inside], o.fault)
+        current[inside] = self._sensed(w, t_rel[inside])
         noise = None
         if o.noise_codes > 0:
             noise = np.random.default_rng([self._noise_seed, 1, rec.number]).normal(0.0, o.noise_codes, k.size)
@@ -598,9 +632,7 @@ class VirtualDevice(LineOutput):
         items.append(_Item(rec.t_on, 1, Event(EventKind.SUPPLY, k_on & 0xFFFFFFFF, int(code)), data=True))
         items.append(_Item(rec.t_on, 1, Event(EventKind.TEMPERATURE, k_on & 0xFFFFFFFF,
                                               int(round(self.coil_temp * 1000))), data=True))
-        for e in actuation_events(w, rec.t_on, fs, o.fault):
-            if rec.peak_cut and e.kind == EventKind.PEAK_END:
-                continue
+        for e in self._events(rec):
             items.append(_Item(max(rec.t_on, e.index / fs), 2,
                                Event(EventKind(e.kind), e.index & 0xFFFFFFFF, e.value), data=True))
         per = o.samples_per_frame
@@ -613,6 +645,15 @@ class VirtualDevice(LineOutput):
         self._plan_items = items
         return items
 
+    def _sensed(self, w, t_rel: np.ndarray) -> np.ndarray:
+        """Current (A) the sense resistor carries ``t_rel`` s into the waveform ``w``."""
+        return sense_current(self.drive, w, t_rel, self.options.fault)
+
+    def _events(self, rec: _Recording) -> list:
+        """The ON, PEAK_END, OFF (and position-switch) events of a recording."""
+        return [e for e in actuation_events(rec.w, rec.t_on, self.sample_rate, self.options.fault)
+                if not (rec.peak_cut and e.kind == EventKind.PEAK_END)]
+
     # ------------------------------------------------------------------ time
     def _advance(self, now: float) -> None:
         if now < self._now:
@@ -624,7 +665,7 @@ class VirtualDevice(LineOutput):
                 self.stats.automatic_skipped += 1
             else:
                 self._queue(_Item(t, 1, self.info))
-                self._start(t, self.options.hold_time)
+                self._start_automatic(t)
             self._next_auto = t + self.period
         self._run(now)
 

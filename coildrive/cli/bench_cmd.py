@@ -117,7 +117,8 @@ def check_command(
     tol_peak: Optional[str] = typer.Option(None, "--tol-peak", help="Tolerance on the peak duration (default 0.05)."),
     tol_hold_mean: Optional[str] = typer.Option(None, "--tol-hold-mean", help="Tolerance on the hold mean current (default 0.10)."),
     tol_ripple: Optional[str] = typer.Option(None, "--tol-ripple", help="Tolerance on the hold ripple (default 0.30)."),
-    tol_release: Optional[str] = typer.Option(None, "--tol-release", help="Tolerance on the release time (default 0.20)."),
+    tol_release: Optional[str] = typer.Option(None, "--tol-release", help="Tolerance on the release time, and a latching coil's time to zero after each pulse (default 0.20)."),
+    tol_pulse: Optional[str] = typer.Option(None, "--tol-pulse", help="Tolerance on a latching coil's current at the end of each pulse (default 0.10)."),
     no_events: bool = typer.Option(False, "--no-events", help="Find the phases from the waveform even when the capture has events (or, in a scope CSV, a switch column)."),
     columns: Optional[str] = typer.Option(None, "--columns", help=_COLUMNS_HELP),
     current_scale: Optional[str] = typer.Option(None, "--current-scale", help=_SCALE_HELP),
@@ -135,13 +136,25 @@ def check_command(
                  "peak_duration": _fraction(tol_peak, "--tol-peak"),
                  "hold_mean": _fraction(tol_hold_mean, "--tol-hold-mean"),
                  "hold_ripple": _fraction(tol_ripple, "--tol-ripple"),
-                 "release_time": _fraction(tol_release, "--tol-release")}
+                 "release_time": _fraction(tol_release, "--tol-release"),
+                 "pulse_current": _fraction(tol_pulse, "--tol-pulse")}
     tolerances = Tolerances(**{k: v for k, v in overrides.items() if v is not None})
     v = _quantity(supply, "voltage", "--supply")
     t = _quantity(coil_temp, "temperature", "--coil-temp")
     cap = _read(capture, columns, current_scale, sample_interval)
-    result = design(load_drive(drive, board))
-    report = check_capture(cap, result, tolerances, supply=v, coil_temp=t, use_events=not no_events)
+    drv = load_drive(drive, board)
+    if drv.latch is not None:
+        from ..bench.latch_check import check_latch_capture
+        from ..design.latch import design_latch
+
+        for option, given in (("--plot", plot is not None), ("--no-events", no_events)):
+            if given:
+                raise InputError(option, "", "a latching coil's check takes its pulses from the ON/OFF "
+                                 "events and has no plot yet: leave it out")
+        report = check_latch_capture(cap, design_latch(drv), tolerances, supply=v, coil_temp=t)
+    else:
+        report = check_capture(cap, design(drv), tolerances, supply=v, coil_temp=t,
+                               use_events=not no_events)
     if as_json:
         typer.echo(json.dumps(report.to_dict(), indent=2))
     else:

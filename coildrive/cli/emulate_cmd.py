@@ -97,9 +97,12 @@ def emulate_command(
     else:
         if channel is not None:
             raise InputError("--channel", "", f"{drive} is a drive file, not a system file: leave --channel out")
-        d = design(load_drive(drive, board))
+        drv = load_drive(drive, board)
+        d = None if drv.latch is not None else design(drv)
     try:
-        if firmware is not None:
+        if d is None:   # a latching coil: its set and reset pulses
+            device = _latch_device(drive, drv, options, firmware, fault)
+        elif firmware is not None:
             from ..bench.firmware_device import FirmwareDevice
             from ..codegen.host_build import build_firmware
             FirmwareDevice.check_design(d)
@@ -135,6 +138,30 @@ def emulate_command(
     if line_log is not None:
         write_line_log(line_log, device)
     status("stopped")
+
+
+def _latch_device(path: Path, drv, options, firmware: Optional[Path], fault: Optional[str]):
+    """The virtual device of a latching coil (:class:`~coildrive.bench.latch_device.LatchDevice`)."""
+    from ..bench.device import OptionError
+    from ..bench.latch_device import LatchDevice
+    from ..design.latch import design_latch
+
+    for option, given in (("--firmware", firmware is not None), ("--fault", fault is not None)):
+        if given:
+            raise InputError(option, "", "a latching coil's virtual device runs the design's pulses "
+                             "(no generated driver, no fault to put in): leave it out")
+    d = design_latch(drv)
+    try:
+        device = LatchDevice(d, options)
+    except OptionError as err:
+        raise InputError(_OPTION.get(err.name, err.name), "", err.message) from None
+    except ValueError as err:
+        raise InputError(str(path), "thermal.max_coil_temp" if "interval" in str(err) else "reset.current" if "reset" in str(err) else "pull_in.current", str(err)) \
+            from None
+    status(f"latching coil: set pulse {device.pulse_time('set') * 1e3:.4g} ms, reset pulse "
+           f"{device.pulse_time('reset') * 1e3:.4g} ms, one every {device.period:.4g} s (the design's "
+           f"shortest safe interval {device.interval:.4g} s)")
+    return device
 
 
 def write_line_log(path: Path, device) -> None:

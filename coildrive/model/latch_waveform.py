@@ -53,7 +53,7 @@ class LatchWaveform:
         return buf.getvalue()
 
 
-def _pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_factor: float,
+def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_factor: float,
            t_pulse: float, points: int):
     """One pulse from zero: ``(t, i, on, bus, t_zero)`` relative to its start (s, A, 0/1,
     the bus while on V) and the time its current reaches zero."""
@@ -82,8 +82,8 @@ def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: 
                     l_factor: float = 1.0, points: int = 400) -> LatchWaveform:
     """The set pulse at 0 and the reset pulse at ``interval`` s (``reset_drive``: the drive
     as its winding sees it, :func:`coildrive.design.latch.winding_drive`)."""
-    ts, is_, ons, buses, tz_s, rel_s = _pulse(drive, supply, coil_temp, r_factor, l_factor, set_time, points)
-    tr, ir, onr, busr, tz_r, rel_r = _pulse(reset_drive, supply, coil_temp, r_factor, l_factor, reset_time,
+    ts, is_, ons, buses, tz_s, rel_s = pulse(drive, supply, coil_temp, r_factor, l_factor, set_time, points)
+    tr, ir, onr, busr, tz_r, rel_r = pulse(reset_drive, supply, coil_temp, r_factor, l_factor, reset_time,
                                             points)
     gap = max(interval, tz_s)
     idle_t = np.array([0.5 * (tz_s + gap)]) if gap > tz_s else np.empty(0)

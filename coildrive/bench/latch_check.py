@@ -1,0 +1,219 @@
+"""Check a capture of a latching coil against its design: each pulse measured, pass or fail.
+
+The pulses come from the device's events: ON (``value`` 0 the set pulse, 1 the reset
+pulse; ``docs/protocol.md``) to OFF, then the decay to zero. Per pulse:
+
+* ``<pulse>_length``: OFF minus ON against the design's pulse (whole ticks), band
+  ``Tolerances.peak_duration`` widened to two sample periods and one tick;
+* ``<pulse>_end_current``: the last sample before OFF (mid-step) against the model's
+  current at the pulse's end, ``i(t_pulse)`` of the winding's RL rise (from a full
+  capacitor on a drooping bus: :func:`coildrive.design.latch.rise_current_at`) with the
+  design's R and L at the capture's supply and coil temperature (the operating point of
+  :func:`coildrive.bench.check.operating_point`), band ``Tolerances.pulse_current``
+  widened to two ADC codes plus the rise of one sample period. A reading at the ADC's
+  full scale is not a measurement (left out; the row is ``n/a`` when every one is);
+* ``<pulse>_time_to_zero``: from OFF to the first sample at or below the capture's zero
+  level, against the model's decay through the release path from that end current down
+  to the current of one code above that level, band ``Tolerances.release_time`` widened
+  to two sample periods and the time one code takes. ``n/a`` where the sense resistor
+  does not see the decay (under the switches, or a bridge's common return).
+
+A pulse the capture cut short (no OFF, or its current not back at zero when the capture
+ends, or begun before it) is reported and left out, like the partial actuations of
+:mod:`coildrive.bench.check`.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..errors import InputError
+from ..jsondoc import json_ready
+from .analysis import _levels
+from .capture_file import Capture
+from .check import (BENCH_CAUTIONS, FAIL, PASS, CheckItem, CheckReport, Tolerances, _fault_row, _row,
+                    operating_point, prepare_capture)
+from .messages import EventKind
+
+_NAMES = {0: "set", 1: "reset"}
+
+
+@dataclass(frozen=True)
+class PulseMeasure:
+    """One pulse of the capture: ``number`` (1 first), ``name`` (set / reset), its start
+    ``start_s``, ``length_s``, ``end_current_a`` (``None`` at full scale),
+    ``time_to_zero_s`` (``None`` unseen), ``samples_missing``, ``partial`` (``None`` or why
+    it is left out)."""
+
+    number: int
+    name: str
+    start_s: float
+    length_s: float | None
+    end_current_a: float | None
+    time_to_zero_s: float | None
+    samples_missing: int
+    partial: str | None = None
+
+
+@dataclass(frozen=True)
+class LatchAnalysis:
+    """The pulses of a capture (``check --json`` key ``analysis``)."""
+
+    pulses: tuple[PulseMeasure, ...]
+    sample_rate_hz: float
+    amps_per_code: float
+    sense_position: str
+    zero_threshold_a: float
+
+    def to_dict(self) -> dict:
+        return json_ready({"pulses": [p.__dict__ for p in self.pulses], "sample_rate_hz": self.sample_rate_hz,
+                           "amps_per_code": self.amps_per_code, "sense_position": self.sense_position,
+                           "zero_threshold_a": self.zero_threshold_a})
+
+
+def measure_pulses(capture: Capture, sense: str) -> LatchAnalysis:
+    """Cut ``capture`` into pulses by its ON/OFF events and measure each (module docstring)."""
+    meta = capture.meta
+    fs, apc = float(meta.sample_rate_hz), float(meta.amps_per_code)
+    idx = capture.index
+    c = capture.code.astype(np.int64) - int(meta.zero_code or 0)
+    lv = _levels(c)
+    full = 2 ** int(meta.adc_bits) - 1 - int(meta.zero_code or 0)
+    ev = sorted((e for e in capture.events if e.kind in (EventKind.ON, EventKind.OFF)), key=lambda e: e.index)
+    ons = [e for e in ev if e.kind == EventKind.ON]
+    out = []
+    for k, on in enumerate(ons):
+        nxt = ons[k + 1].index if k + 1 < len(ons) else None
+        off = next((e for e in ev if e.kind == EventKind.OFF and e.index >= on.index
+                    and (nxt is None or e.index < nxt)), None)
+        name = _NAMES.get(on.value, f"pulse code {on.value}")
+        p_on = int(np.searchsorted(idx, on.index))
+        partial = None
+        if p_on == 0 and idx.size and idx[0] > on.index:
+            partial = f"the capture began during pulse {k + 1} ({name})"
+        if off is None:
+            out.append(PulseMeasure(k + 1, name, on.index / fs, None, None, None, 0,
+                                    partial or f"the capture ended during pulse {k + 1} ({name})"))
+            continue
+        p_off = int(np.searchsorted(idx, off.index))
+        limit = int(np.searchsorted(idx, nxt)) if nxt is not None else idx.size
+        end = None
+        if p_off > 0 and p_off - 1 >= p_on:
+            code = int(c[p_off - 1])
+            end = None if code >= full else (max(code, 0) + 0.5) * apc
+        low = np.flatnonzero(c[p_off:limit] <= lv.zero)
+        zero_pos = p_off + int(low[0]) if low.size else None
+        if zero_pos is None and partial is None:
+            partial = f"the capture ended before pulse {k + 1} ({name}) was back at zero"
+        t_zero = None if zero_pos is None or sense != "coil" else float(idx[zero_pos] - off.index) / fs
+        span = idx[p_on:(zero_pos + 1 if zero_pos is not None else limit)]
+        missing = int(np.sum(np.maximum(np.diff(span) - 1, 0))) if span.size > 1 else 0
+        out.append(PulseMeasure(k + 1, name, on.index / fs, (off.index - on.index) / fs, end, t_zero, missing,
+                                partial))
+    return LatchAnalysis(tuple(out), fs, apc, sense, lv.zero * apc)
+
+
+def predict_pulse(design, name: str, supply: float, coil_temp: float, zero_current: float,
+                  resolution: float) -> dict:
+    """The model's figures of pulse ``name`` at ``supply`` V with the coil at ``coil_temp``
+    degC and the design's nominal R and L: ``length_s``, ``end_current_a``, the slope at the
+    end ``slope_a_s`` (A/s), ``time_to_zero_s`` (down to ``zero_current`` A) and the time
+    one code ``resolution`` A takes there, ``code_time_s``."""
+    from ..design.latch import rise_current_at, winding_drive
+    from ..model.circuit import loop
+    from ..model.rl import decay_time
+
+    p = next(x for x in design.latch.pulses if x.name == name)
+    wd = winding_drive(design.drive, name == "reset")
+    lp = loop(wd, np.array([supply]), np.array([coil_temp]), 1.0, 1.0)
+    rel = loop(wd, np.array([supply]), np.array([coil_temp]), 1.0, 1.0, path="release")
+    i_end = float(rise_current_at(wd, lp, p.time_s)[0])
+    ind = float(lp.inductance[0]) if np.ndim(lp.inductance) else float(lp.inductance)
+    slope = max((float(lp.v_on[0]) - float(lp.r_on[0]) * i_end) / ind, 0.0)
+    level = min(zero_current, i_end)
+    r_off, v_off = float(np.ravel(rel.r_off)[0]), float(np.ravel(rel.v_off)[0])
+    t_zero = float(decay_time(level, i_end, r_off, v_off, ind))
+    fall = (r_off * level + v_off) / ind
+    return {"length_s": p.time_s, "end_current_a": i_end, "slope_a_s": slope, "time_to_zero_s": t_zero,
+            "code_time_s": resolution / fall}
+
+
+def check_latch_capture(capture: Capture, design, tolerances: Tolerances | None = None,
+                        supply: float | None = None, coil_temp: float | None = None) -> CheckReport:
+    """Compare every pulse of ``capture`` with ``design`` (a
+    :class:`~coildrive.design.latch.LatchDesign`; module docstring)."""
+    tol = tolerances or Tolerances()
+    drive = design.drive
+    board = drive.board
+    capture = prepare_capture(capture, board)
+    if capture.meta.link == "text":
+        raise InputError(capture.source, "", "is a text-line capture: its 'on' lines carry no pulse "
+                         "polarity, and a latching coil's check needs the ON events' values (binary frames)")
+    if not any(e.kind == EventKind.ON for e in capture.events):
+        raise InputError(capture.source, "", "has no ON events: a latching coil's check takes its pulses "
+                         "(set or reset) from the device's ON/OFF events")
+    supply_codes = [e.value for e in capture.events if e.kind == EventKind.SUPPLY]
+    bits = capture.meta.adc_bits or board.adc.bits
+    if supply is None and capture.meta.supply_v is None and supply_codes and \
+            float(np.median(supply_codes)) >= 2**bits - 1:
+        raise InputError(capture.source, "supply", "its SUPPLY readings are at the ADC's full scale (the bus "
+                         f"is above the {board.adc.reference * board.supply_sense.divider:.4g} V the "
+                         "board's divider reads): give the bus voltage with --supply")
+    point = operating_point(drive, capture, supply, coil_temp)
+    sense = capture.meta.sense_position or board.sense.position
+    a = measure_pulses(capture, sense)
+    cut = [p for p in a.pulses if p.partial is not None]
+    done = [p for p in a.pulses if p.partial is None]
+    if cut and not done:
+        raise InputError(capture.source, "", f"holds no complete pulse: {cut[-1].partial} (nothing to check; "
+                         "capture at least one whole pulse, from idle to idle)")
+    notes = [f"{p.partial}: it is reported but left out of the check" for p in cut]
+    if capture.meta.board is not None and capture.meta.board != board.name:
+        notes.insert(0, f"the capture says board {capture.meta.board!r}, the drive uses {board.name!r}")
+    fs, apc = a.sample_rate_hz, a.amps_per_code
+    period, tick = 1.0 / fs, 1.0 / board.tick.rate
+    items = [CheckItem("pulses", PASS if done else FAIL, float(len(done)), None, None, None, "",
+                       f"{len(done)} found from the ON/OFF events ("
+                       + ", ".join(f"{sum(p.name == n for p in done)} {n}" for n in ("set", "reset")) + ")"
+                       + "".join(f"; left out: {p.partial}" for p in cut),
+                       actuations=tuple(p.number for p in done))]
+    missing = sum(p.samples_missing for p in done)
+    items.append(CheckItem("link", FAIL if missing else PASS, float(missing), 0.0, 0.0, 0.0, "samples",
+                           f"{missing} missing in pulses; {capture.lost_frames} frames lost, "
+                           f"{capture.crc_errors} CRC errors"))
+    faults = _fault_row(capture, fs, ())
+    if faults is not None:
+        items.append(faults)
+    prediction = {}
+    for name in ("set", "reset"):
+        mine = [p for p in done if p.name == name]
+        if not mine:
+            continue
+        pred = predict_pulse(design, name, point.supply_v, point.coil_temp_c, (a.zero_threshold_a / apc + 1) * apc,
+                             apc)
+        prediction[name] = pred
+        nums = [p.number for p in mine]
+        items.append(_row(f"{name}_length", "s", [p.length_s for p in mine], pred["length_s"], tol.peak_duration,
+                          2.0 * period + tick, numbers=nums))
+        ends = [p.end_current_a for p in mine]
+        clipped = all(v is None for v in ends)
+        items.append(_row(f"{name}_end_current", "A", ends, pred["end_current_a"], tol.pulse_current,
+                          2.0 * apc + pred["slope_a_s"] * period, missing_fails=False,
+                          na_reason=(f"at the ADC's full scale ({(2 ** bits - 1) * apc:.4g} A) "
+                                     "in every pulse: the current is above what the sense chain reads")
+                          if clipped else None,
+                          extra=" (the last sample before OFF)", numbers=nums))
+        items.append(_row(f"{name}_time_to_zero", "s", [p.time_to_zero_s for p in mine], pred["time_to_zero_s"],
+                          tol.release_time, 2.0 * period + pred["code_time_s"], numbers=nums,
+                          na_reason=None if sense == "coil" else
+                          "the sense resistor does not carry the decay (under the switches, or a bridge's "
+                          "common return, where the fast decay's current is reversed)",
+                          extra=f" (to {a.zero_threshold_a:.4g} A)"))
+    return CheckReport(items=tuple(items), analysis=a, point=point, tolerances=tol, prediction=prediction,
+                       drive_name=drive.name, board_name=board.name, capture_source=capture.source,
+                       notes=tuple(notes), cautions=BENCH_CAUTIONS, waveform=None)
+
+
+__all__ = ["check_latch_capture", "measure_pulses", "predict_pulse", "LatchAnalysis", "PulseMeasure"]

@@ -1,0 +1,164 @@
+"""The virtual bench device of a latching coil (``[hold] mode = "latch"``).
+
+Like :class:`~coildrive.bench.device.VirtualDevice` (the same line, queues, ADC chain and
+protocol), but each actuation is the design's two pulses: the set pulse, then one
+period later the reset pulse (the period defaults to the design's shortest safe
+interval, or longer when a pulse's recording needs longer to drain at line rate; a
+shorter ``--period`` is refused). Each pulse is its own recording: from
+``pre_trigger`` s before it to ``post_margin`` s after its current is back at zero, with
+PAUSE over the idle samples between the pulses.
+
+Each pulse (:func:`coildrive.model.latch_waveform.pulse`) switches on from zero for the
+design's pulse length (whole scheduler ticks), from a full capacitor on a drooping bus,
+and decays to zero through the release path. Events: ON at its start (``value`` 0 for
+the set pulse, 1 for the reset pulse: ``docs/protocol.md``), OFF at its end; SUPPLY and
+TEMPERATURE as for any actuation.
+
+What the sense resistor reads (``docs/bench.md``, *A latching coil on the bench*):
+
+* full bridge, common return (``position = "switch"``): both polarities flow down
+  through it while a pulse's switches are on, so it reads ``|i|``; in the fast decay the
+  current comes up out of ground through it (reversed), and the unipolar ADC reads 0;
+* full bridge, inline (``position = "coil"``): it carries the coil's signed current
+  throughout; the device streams its magnitude, as a firmware that folds the sign of a
+  bidirectional sense amplifier (it knows the polarity it drives) would;
+* a reset winding: both windings share the one sense resistor -- under their switches
+  (``"switch"``) it reads the pulsing winding's current while on, in the windings' return
+  (``"coil"``) also its freewheel decay.
+
+Host commands: START fires the next pulse (set and reset alternate; BUSY while one runs
+or sooner than the design's interval after the last), STOP opens the switches at once,
+QUERY_INFO; the peak-and-hold settings (peak time, hold duty and frequency) do not apply
+(UNKNOWN_OPCODE).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..config import Drive
+from ..design.latch import LatchDesign, winding_drive
+from .capture_file import CaptureEvent
+from .device import MIN_AUTO_PERIOD, DeviceOptions, OptionError, VirtualDevice, _Recording
+from .messages import EventKind, Opcode, ReplyStatus
+from .synth import first_sample_at_or_after
+
+#: ON event value of each pulse (``docs/protocol.md``, section 4.2).
+PULSE_CODE = {"set": 0, "reset": 1}
+
+
+@dataclass(frozen=True)
+class PulseRun:
+    """One pulse from zero: ``time`` s, the winding's current ``current`` A (its magnitude),
+    ``on_time`` s the switches are on, ``events`` (``on``, ``off``, ``zero``: s)."""
+
+    kind: str
+    time: np.ndarray
+    current: np.ndarray
+    on_time: float
+    events: dict
+
+
+class LatchDevice(VirtualDevice):
+    """The virtual board of a latching coil (module docstring).
+
+    Parameters
+    ----------
+    design : the :class:`~coildrive.design.latch.LatchDesign` the firmware runs.
+    options : :class:`~coildrive.bench.device.DeviceOptions` (``hold_time`` and ``fault``
+        do not apply: a fault is refused).
+    """
+
+    def __init__(self, design: LatchDesign, options: DeviceOptions | None = None):
+        self.options = options = options or DeviceOptions()
+        if options.fault is not None:
+            raise OptionError("fault", "the latching coil's device has no fault to put in")
+        self.design = design
+        self.drive = drive = design.drive
+        lt = design.latch
+        missing = [p.name for p in lt.pulses if p.ticks is None]
+        if missing or lt.interval_ticks is None:
+            raise ValueError(f"the design has no {missing[0]} pulse (its current is never reached)" if missing
+                             else "the design has no safe interval between pulses (coil_temperature check)")
+        self._set_board(drive, options)
+        self.pulse_ticks = {p.name: p.ticks for p in lt.pulses}
+        self.interval = lt.interval_ticks / self.tick_rate
+        self._drives: dict[str, Drive] = {"set": drive, "reset": winding_drive(drive, True)}
+        self._next_kind = "set"
+        self._last_start = -math.inf
+        self._boost_peak = None
+        self.info = self._make_info(False)
+        if options.period is not None and options.period < self.interval:
+            raise OptionError("period", f"{options.period:g} s is shorter than the design's shortest safe "
+                              f"interval between pulses, {self.interval:g} s ({lt.governed_by})")
+        self._start_line(options)
+        if options.period is None:
+            self.period = max(self.period, MIN_AUTO_PERIOD, math.ceil(self.interval * 1e3 - 1e-9) / 1e3)
+
+    def pulse_time(self, kind: str) -> float:
+        """The pulse's length, s (whole scheduler ticks)."""
+        return self.pulse_ticks[kind] / self.tick_rate
+
+    # ------------------------------------------------------------------ physics
+    def _make_waveform(self, key: tuple) -> PulseRun:
+        """The pulse ``(kind, on-time s)`` at the device's supply and coil temperature."""
+        from ..model.latch_waveform import pulse
+
+        kind, on_time = key
+        o = self.options
+        t, i, _, _, t_zero, _ = pulse(self._drives[kind], self.supply, self.coil_temp,
+                                      o.resistance_scale, o.inductance_scale, on_time, 2000)
+        return PulseRun(kind, t, np.abs(i), on_time, {"on": 0.0, "off": on_time, "zero": t_zero})
+
+    def _sensed(self, w: PulseRun, t_rel: np.ndarray) -> np.ndarray:
+        i = np.interp(t_rel, w.time, w.current)
+        if self.drive.board.sense.position != "coil":
+            i = np.where(t_rel <= w.on_time, i, 0.0)
+        return i
+
+    def _events(self, rec: _Recording) -> list:
+        fs = self.sample_rate
+        w = rec.w
+        return [CaptureEvent(first_sample_at_or_after(rec.t_on, fs), int(EventKind.ON), PULSE_CODE[w.kind]),
+                CaptureEvent(first_sample_at_or_after(rec.t_on + w.on_time, fs), int(EventKind.OFF), 0)]
+
+    def _recording_span(self, hold_time: float) -> float:
+        """s from the start of the longer pulse's recording to the end of its stream."""
+        return max(self._span_of(self._waveform((kind, self.pulse_time(kind)))) for kind in ("set", "reset"))
+
+    def _start_automatic(self, now: float) -> None:
+        self._start(now)
+
+    def _start(self, now: float, hold_time: float | None = None) -> None:
+        kind = self._next_kind
+        self._next_kind = "reset" if kind == "set" else "set"
+        self._last_start = now
+        self._record(now, (kind, self.pulse_time(kind)))
+
+    def _stop(self, now: float) -> None:
+        """STOP at ``now``: the switches open at once (the pulse ends there)."""
+        rec = self._rec
+        if rec is None or now >= rec.t_off or rec.stopped:
+            return
+        self._replan(rec, (rec.key[0], max(now - rec.t_on, 1.0 / self.sample_rate)), now)
+
+    def _execute(self, cmd, now: float) -> tuple[int, int]:
+        op = cmd.opcode
+        if op == Opcode.START:
+            if self.busy() or now - self._last_start < self.interval:
+                return ReplyStatus.BUSY, 0
+            kind = self._next_kind
+            self._start(now)
+            return ReplyStatus.OK, int(round(self.pulse_time(kind) * 1e6))
+        if op == Opcode.STOP:
+            self._stop(now)
+            return ReplyStatus.OK, 0
+        if op == Opcode.QUERY_INFO:
+            return ReplyStatus.OK, 0
+        return ReplyStatus.UNKNOWN_OPCODE, 0
+
+
+__all__ = ["LatchDevice", "PulseRun", "PULSE_CODE"]
