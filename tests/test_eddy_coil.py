@@ -81,9 +81,6 @@ def test_current_mode_is_refused_in_one_line(tmp_path):
     path.write_text(path.read_text().replace('frequency = "25 kHz"', 'frequency = "25 kHz"\nmode = "current"'))
     r = run_cli("design", str(path))
     assert r.returncode == 2 and "hold.mode" in r.stderr and "eddy" in r.stderr, r.stderr
-    r = run_cli("tune", str(_example_drive(tmp_path, 'eddy_resistance = "300 ohm"',
-                                            EXAMPLES / "reagent-valve-zener-24v.toml")))
-    assert r.returncode == 2 and "coil.eddy_resistance" in r.stderr, r.stderr
 
 
 # --------------------------------------------------------------- the physics vs scipy
