@@ -1260,10 +1260,6 @@ def _eddy_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel, swit
     if freewheel.split_decay:
         raise InputError(source, "freewheel.split_decay", f"split decay with {what} is not "
                          "supported yet")
-    if duty is not None or thermal.capacity > 0:
-        raise InputError(source, "duty" if duty is not None else "thermal.capacity",
-                         f"an on/off cycle's coil temperature with {what} is not supported yet: "
-                         "leave [duty] and thermal.capacity / time_constant out")
     if supply.droops:
         raise InputError(source, "supply.source_resistance", f"a drooping bus with {what} is "
                          "not supported yet: leave source_resistance out")

@@ -55,7 +55,6 @@ def test_time_constant_converts_with_the_small_signal_inductance(tmp_path):
      "coil.eddy_resistance and coil.eddy_time_constant", "keep one of them"),
     ('eddy_resistance = "1e-6 ohm"', "coil.eddy_resistance", "outside"),
     ('eddy_resistance = "3 mH"', "coil.eddy_resistance", ""),
-    ('eddy_resistance = "300 ohm"\n[duty]\non_time = "1 s"\noff_time = "1 s"', "duty", "not supported"),
 ])
 def test_file_errors_name_the_key(tmp_path, extra, key, words):
     path = _example_drive(tmp_path, extra)
