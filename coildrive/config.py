@@ -1257,13 +1257,10 @@ def _eddy_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel, swit
     if switch.topology == "full_bridge":
         raise InputError(source, "switch.topology", f"\"full_bridge\" with {what} is not "
                          "supported yet")
-    if freewheel.split_decay:
-        raise InputError(source, "freewheel.split_decay", f"split decay with {what} is not "
-                         "supported yet")
-    if duty is not None or thermal.capacity > 0:
-        raise InputError(source, "duty" if duty is not None else "thermal.capacity",
-                         f"an on/off cycle's coil temperature with {what} is not supported yet: "
-                         "leave [duty] and thermal.capacity / time_constant out")
+    if freewheel.split_decay and freewheel.bypass_lead < 0:
+        raise InputError(source, "freewheel.bypass_lead", f"a bypass that opens after the final "
+                         f"turn-off with {what} is not supported yet: open it at or before the "
+                         "turn-off (bypass_lead >= 0)")
     if supply.droops:
         raise InputError(source, "supply.source_resistance", f"a drooping bus with {what} is "
                          "not supported yet: leave source_resistance out")

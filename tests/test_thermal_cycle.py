@@ -237,9 +237,10 @@ def test_design_cycle_against_solve_ivp(cycled):
     assert cool == pytest.approx(t.cycle["coolest_c"], abs=2e-3), "scipy solve_ivp, 60 cycles"
 
 
-def hottest_point_energies(d):
-    """``(on_energies function, ambient degC)`` at the heating point of the design ``d``
-    where its cycle is hottest: the actuation's copper heat as the design computes it."""
+def hottest_point(d):
+    """The heating point of the design ``d`` where its cycle is hottest: ``(point, duty,
+    frequency Hz, ambient degC)``, ``point`` the loop's supply, tolerance factors (arrays
+    of one) and other ``factors``."""
     from coildrive.design.regulation import solve_hold
     from coildrive.design.timer import solve_timer
     drive = d.drive
@@ -250,11 +251,19 @@ def hottest_point_energies(d):
     heat = plan.heat
     k = next(i for i in range(len(heat.supply)) if heat.label(i) == d.thermal_cycle.cycle["corner"])
     tk = heat.tol.take([k])
-    energies = on_energies(drive, heat.supply[k:k + 1], tk.r_factor, tk.l_factor,
-                           plan.heat_compare[k:k + 1] / timer.period_ticks, timer.frequency_hz,
-                           {"diode_factor": tk.diode_factor, "fast_factor": tk.fast_factor,
-                            "sense_factor": tk.sense_factor}, d.pull_in.peak_time_s)
-    return energies, float(heat.ambient[k])
+    point = dict(supply=heat.supply[k:k + 1], r_factor=tk.r_factor, l_factor=tk.l_factor,
+                 factors={"diode_factor": tk.diode_factor, "fast_factor": tk.fast_factor,
+                          "sense_factor": tk.sense_factor})
+    return point, plan.heat_compare[k:k + 1] / timer.period_ticks, timer.frequency_hz, float(heat.ambient[k])
+
+
+def hottest_point_energies(d):
+    """``(on_energies function, ambient degC)`` at the heating point of the design ``d``
+    where its cycle is hottest: the actuation's copper heat as the design computes it."""
+    p, duty, f, amb = hottest_point(d)
+    energies = on_energies(d.drive, p["supply"], p["r_factor"], p["l_factor"], duty, f, p["factors"],
+                           d.pull_in.peak_time_s)
+    return energies, amb
 
 
 def ivp_cycles(power, ambient, start, drive, cycles):

@@ -464,6 +464,19 @@ def _paste_hold(text: str, section: str) -> str:
     return text[:start] + section + "\n" + text[end:]
 
 
+def printed_hold(r) -> str:
+    """The [hold] ``r`` prints, checked to name its recommendation's frequency, prescaler,
+    period and compare on the frequency line."""
+    rec = r.recommendation
+    section = r.hold_section()
+    m = re.search(r"^frequency = (\d+)  # Hz = [\d.]+ MHz / \(prescaler (\d+) x period (\d+)\), compare (\d+)$",
+                  section, re.M)
+    assert m, section
+    assert tuple(map(int, m.groups())) == (rec.frequency_hz, rec.prescaler, rec.period_ticks,
+                                           rec.compare_ticks)
+    return section
+
+
 @pytest.mark.parametrize("example,board", [
     (e, b) for e in sorted(p.name for p in EXAMPLES.glob("*.toml"))
     # (a saturating coil's example is left out: tune refuses a flux-linkage curve, which
@@ -493,12 +506,7 @@ def test_every_offered_frequency_is_exact_and_the_pasted_hold_designs_to_it(tmp_
     if rec is None:
         assert r.explanation.startswith("no feasible hold setting"), r.explanation
         return
-    section = r.hold_section()
-    m = re.search(r"^frequency = (\d+)  # Hz = [\d.]+ MHz / \(prescaler (\d+) x period (\d+)\), compare (\d+)$",
-                  section, re.M)
-    assert m, section
-    assert tuple(map(int, m.groups())) == (rec.frequency_hz, rec.prescaler, rec.period_ticks,
-                                           rec.compare_ticks)
+    section = printed_hold(r)
     path = tmp_path / example
     path.write_text(_paste_hold((EXAMPLES / example).read_text(), section))
     pasted = load_drive(path, board)

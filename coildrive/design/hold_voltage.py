@@ -28,7 +28,7 @@ from ..config import Drive
 from ..errors import InputError
 from ..model.circuit import split_decay
 from ..model.losses import HoldLosses, hold_losses
-from ..model.pwm import pwm_steady_state
+from ..model.pwm import coil_heat, pwm_steady_state
 from .diagnostics import rise_check, seat_check
 from .boost import boost_cautions, boost_checks, boost_result, boosted_points, boosted_turn_offs
 from .checks import base_checks, cautions, energy_checks, loss_cautions, loss_checks
@@ -359,7 +359,9 @@ def hold_figures(drive: Drive, timer: TimerSetting) -> HoldFigures:
     res = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor,
                    plan.compare_high / period, f, 0.0, **at)
     loss = _losses(drive, res, f)
-    parts = {"coil": loss.coil, "sense": loss.sense, "switch_conduction": loss.switch_conduction,
+    # the coil's part: its copper and, with an eddy term, the core's eddy loss the supply feeds
+    coil = loss.coil if res.hold.eddy_energy is None else coil_heat(res.hold, res.loop.r_coil)
+    parts = {"coil": coil, "sense": loss.sense, "switch_conduction": loss.switch_conduction,
              "switch_switching": np.broadcast_to(loss.switch_switching, loss.coil.shape),
              **{n: np.broadcast_to(v, loss.coil.shape) for n, v in loss.elements().items()}}
     total = sum(parts.values())

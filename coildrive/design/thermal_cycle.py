@@ -2,7 +2,8 @@
 
 With both given, each actuation heats the coil for ``duty.on_time`` -- its peak (full
 on from zero current, the design's peak length), its hold (the hold the firmware runs,
-in its periodic steady state) and the copper's share of its release -- and lets it cool
+in its periodic steady state) and the copper's share of its release; with an eddy-current
+term each also the core's eddy loss, the release's to the end of the flux -- and lets it cool
 for ``duty.off_time``; the hottest coil over that cycle's periodic steady state
 (:mod:`coildrive.model.thermal_cycle`) replaces the continuous-hold temperature in the
 envelope. The peak and release last milliseconds, far below the thermal time constant:
@@ -23,7 +24,9 @@ from typing import Callable
 import numpy as np
 
 from ..config import Drive
+from ..model import eddy
 from ..model.circuit import full_bridge, loop
+from ..model.eddy import EddyCoil
 from ..model.pwm import pwm_steady_state
 from ..model.rl import decay_integrals, decay_time, rise_integrals
 from ..model.thermal_cycle import chord, cycle_steady_state, heating, time_to_rise
@@ -77,15 +80,39 @@ def on_energies(drive: Drive, supply, r_factor, l_factor, duty, frequency, facto
     def at(temp):
         lp = loop(drive, supply, temp, r_factor, l_factor, **factors)
         ss = state(lp)
-        _, s_pk = rise_integrals(t_pk, 0.0, lp.v_on, lp.r_on, peak_inductance(drive, lp))
         # a full bridge's hold path (slow decay, no opposing voltage) never brings the
         # current to zero: its release is the fast decay into the bus
         rel = loop(drive, supply, temp, r_factor, l_factor, path="release", **factors) \
             if full_bridge(drive) else lp
+        peak, hold = peak_heat(drive, lp, t_pk), hold_heat(ss, lp.r_coil) * t_hold
+        if isinstance(lp.inductance, EddyCoil):
+            # the core's eddy loss heats the coil with the copper, the release's to the end
+            # of the flux (its tail through R_e after the freewheel path blocks)
+            _, s_rel, w_rel = eddy.decay_integrals(np.inf, ss.i_max, rel.r_off, rel.v_off, rel.inductance)
+            return peak, hold, lp.r_coil * s_rel + w_rel
         t0 = decay_time(0.0, ss.i_max, rel.r_off, rel.v_off, rel.inductance)
         _, s_rel = decay_integrals(t0, ss.i_max, rel.r_off, rel.v_off, rel.inductance)
-        return lp.r_coil * s_pk, ss.rms**2 * lp.r_coil * t_hold, lp.r_coil * s_rel
+        return peak, hold, lp.r_coil * s_rel
     return at
+
+
+def hold_heat(ss, r_coil):
+    """W that heats the coil in a hold's steady state ``ss`` (anything with ``rms`` A):
+    the copper's ``I_rms^2 R_coil``, plus an eddy term's core loss (``eddy_energy`` J per
+    ``period`` s) where the orbit has one."""
+    heat = ss.rms**2 * r_coil
+    w = getattr(ss, "eddy_energy", None)
+    return heat if w is None else heat + w / ss.period
+
+
+def peak_heat(drive: Drive, lp, peak_time):
+    """J that heats the coil in a peak full on from zero for ``peak_time`` s at the loop
+    ``lp``: the copper's and an eddy term's core loss."""
+    if isinstance(lp.inductance, EddyCoil):
+        _, s_pk, w_pk = eddy.rise_integrals(peak_time, 0.0, lp.v_on, lp.r_on, lp.inductance)
+        return lp.r_coil * s_pk + w_pk
+    _, s_pk = rise_integrals(peak_time, 0.0, lp.v_on, lp.r_on, peak_inductance(drive, lp))
+    return lp.r_coil * s_pk
 
 
 def cycle_states(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
@@ -145,7 +172,7 @@ class HeatPoints:
         """The hold's coil loss (W) as a function of the coil temperature (degC)."""
         def power_at(temp):
             lp = loop(drive, self.supply, temp, self.r_factor, self.l_factor, **self.factors)
-            return self.state(lp).rms**2 * lp.r_coil
+            return hold_heat(self.state(lp), lp.r_coil)
         return power_at
 
     def cycle(self, drive: Drive, peak_time):
@@ -214,11 +241,10 @@ def cycle_result(drive: Drive, pts: HeatPoints, peak_time: float, offs: list[dic
     peak = on_energies(drive, pts.supply, pts.r_factor, pts.l_factor, None, None, pts.factors,
                        peak_time, pts.state) if cyc is not None else None
 
-    def peak_heat(temp):   # the peak's copper heat (J), full on from zero for the peak time
-        lp = loop(drive, pts.supply, temp, pts.r_factor, pts.l_factor, **pts.factors)
-        _, s_pk = rise_integrals(peak_time, 0.0, lp.v_on, lp.r_on, peak_inductance(drive, lp))
-        return lp.r_coil * s_pk
-    out["cold_start"] = _start(drive, power_at, peak_heat, pts.ambient.copy(), pts.ambient,
+    def peak_at(temp):   # the peak's heat (J), full on from zero for the peak time
+        return peak_heat(drive, loop(drive, pts.supply, temp, pts.r_factor, pts.l_factor, **pts.factors),
+                         peak_time)
+    out["cold_start"] = _start(drive, power_at, peak_at, pts.ambient.copy(), pts.ambient,
                                pts.label)
     if cyc is not None:
         st = pts.cycle(drive, peak_time)
@@ -231,7 +257,7 @@ def cycle_result(drive: Drive, pts: HeatPoints, peak_time: float, offs: list[dic
                 (st.hottest[k] if math.isfinite(st.hottest[k]) else th.max_coil_temp) - pts.ambient[k])),
             "peak_energy_j": e_pk, "hold_energy_j": e_hold, "release_energy_j": e_rel,
         }
-        out["warm_start"] = _start(drive, power_at, peak_heat, st.coolest, pts.ambient, pts.label)
+        out["warm_start"] = _start(drive, power_at, peak_at, st.coolest, pts.ambient, pts.label)
     return ThermalCycleResult(**out)
 
 

@@ -103,11 +103,14 @@ class _Point:
 
 
 def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: float,
-              hold_time: float, points: int):
+              hold_time: float, points: int, release: Loop | None = None, lead: float = 0.0):
     """The sample pieces of one actuation: ``(time, terminal current, magnetising
     current, switch_on, t_off, t_zero)`` (s, A, A, 0/1 arrays; the final turn-off and
     the time the terminal current reaches zero, s) through the loop ``lp`` of one
-    operating point whose inductance is an :class:`~coildrive.model.eddy.EddyCoil`."""
+    operating point whose inductance is an :class:`~coildrive.model.eddy.EddyCoil`.
+    ``release``: the loop of the release (split decay's fast path; ``None``: ``lp``'s),
+    its bypass opening ``lead`` s before the final turn-off (a sample there when that is
+    inside the last on-time; the pieces are then not in time order)."""
     e = lp.inductance[...]
     v, r_on = (float(np.ravel(x)[0]) for x in (lp.v_on, lp.r_on))
     peak_end = float(np.ravel(eddy.rise_current(peak_time, 0.0, v, r_on, e))[0])
@@ -144,6 +147,13 @@ def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: 
     ons.append(on_flat)
     t_cut = peak_time + (n - 1) * period + t_on
     i_cut = float(tops[-1])
+    if release is not None and 0.0 < lead < t_on:   # the bypass opens in the last on-time
+        m_open = pt.on.current(starts[-1], t_on - lead)
+        ts.append(np.array([t_cut - lead]))
+        ms.append(np.array([m_open]))
+        cs.append(np.atleast_1d(pt.on_terminal(m_open)))
+        ons.append(np.ones(1))
+    pt = pt if release is None else _Point(release, i_cut)
     tz = float(pt.conduction(i_cut))
     t_end = max(pt.time_to(i_cut, TAIL_FRACTION * i_cut), tz)
     td = np.unique(np.concatenate([np.linspace(0.0, tz, big + 1), np.linspace(tz, t_end, big + 1)]))

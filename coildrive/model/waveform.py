@@ -127,8 +127,9 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
                                   hold_time, r_factor, l_factor, points, label)
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
     if isinstance(lp.inductance, EddyCoil):   # an eddy-current term: its own sampling
+        fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") if split_decay(drive) else None
         return _eddy_actuation(drive, lp, supply, peak_time, duty, frequency, hold_time,
-                               points, label)
+                               points, label, fast)
     if split_decay(drive):
         return _split_actuation(drive, lp, supply, coil_temp, peak_time, duty, frequency,
                                 hold_time, r_factor, l_factor, points, label)
@@ -234,13 +235,20 @@ EDGE = 1e-9
 
 
 def _eddy_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: float,
-                    frequency: float, hold_time: float, points: int, label: str) -> Waveform:
+                    frequency: float, hold_time: float, points: int, label: str,
+                    fast=None) -> Waveform:
     """:func:`actuation` with an eddy resistance (:mod:`coildrive.model.eddy_waveform`):
-    ``current`` is the terminal current, ``magnetising_current`` the flux's."""
+    ``current`` is the terminal current, ``magnetising_current`` the flux's. ``fast``:
+    split decay's release loop (the hold through ``lp``, the slow one), the bypass
+    opening ``freewheel.bypass_lead`` s before the final turn-off (no earlier than the
+    last on-time's start)."""
     from .eddy_waveform import actuation as eddy_samples
 
+    lead = drive.freewheel.bypass_lead if fast is not None else 0.0
     ts, cs, ms, ons, t_cut, t_zero = eddy_samples(drive, lp, peak_time, duty, frequency,
-                                                   hold_time, points)
+                                                   hold_time, points, fast, lead)
+    order = np.argsort(np.concatenate(ts), kind="stable")   # the bypass's sample, in place
+    ts, cs, ms, ons = ([np.concatenate(x)[order]] for x in (ts, cs, ms, ons))
     time = np.concatenate(ts)
     # each switch edge has a row before and after the step: the one after sits EDGE s
     # later (a switch edge's own scale), so that time rises strictly
@@ -255,9 +263,16 @@ def _eddy_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: flo
     on = np.concatenate(ons).astype(np.int8)
     v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
     events = {"on": 0.0, "hold": peak_time, "off": t_cut, "zero": t_zero}
+    extra = {}
+    if fast is not None:   # split decay: the fast path's switch voltage once the bypass opens
+        t_open = max(t_cut - lead, t_cut - duty / frequency)
+        events["bypass_open"] = t_open
+        bypass = (time < t_open).astype(np.int8)
+        v_sw = np.where(bypass == 1, v_sw, _switch_and_sense(drive, fast, supply, current, on)[0])
+        extra["bypass_on"] = bypass
     return Waveform(time, current, on, v_sw, sense, events, label,
                     **node_columns(drive, supply, current, on, v_sw),
-                    magnetising_current=np.concatenate(ms))
+                    magnetising_current=np.concatenate(ms), **extra)
 
 
 def peak_samples(peak_time: float, v: float, r_on: float, ind: float, big: int,

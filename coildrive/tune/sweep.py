@@ -45,7 +45,7 @@ from ..errors import InputError
 from ..jsondoc import json_ready
 from ..model.circuit import COPPER_ALPHA, loop
 from ..model.losses import HoldLosses, hold_losses
-from ..model.pwm import duty_for_mean, pwm_steady_state
+from ..model.pwm import coil_heat, duty_for_mean, pwm_steady_state
 from ..model.thermal import CEILING_C, closed_form_temperature, coil_r20
 from ..model.thermal_cycle import closed_form_cycle_temperature
 
@@ -268,7 +268,7 @@ def settle_voltage_mode(drive: Drive, supply, ambient, r_factor, l_factor, duty,
         if r_th == 0:
             done[:] = True
             break
-        power = ss.rms**2 * lp.r_coil
+        power = coil_heat(ss, lp.r_coil)   # copper, and an eddy term's core loss
         g = ambient + r_th * power
         slope = r_th * power * dr_dt * (1.0 / lp.r_coil - 2.0 / lp.r_on)
         if prev_t is not None:
@@ -374,6 +374,8 @@ def evaluate_settings(drive: Drive, grid: CornerGrid, duty, frequency, chunk: in
         rf, lf = np.tile(grid.r_factor, m), np.tile(grid.l_factor, m)
         temp, lp, ss = settle_voltage_mode(drive, sup, amb, rf, lf, d, f)
         loss = hold_losses(drive, lp, ss, f, drive.switch.rise_time, drive.switch.fall_time)
+        if ss.eddy_energy is not None:   # the coil's heat: its copper and the core's eddy loss
+            loss = dataclasses.replace(loss, coil=coil_heat(ss, lp.r_coil))
         split = np.stack([np.broadcast_to(getattr(loss, name), d.shape) for name in POWER_PARTS])
         total = split.sum(axis=0)
 
@@ -440,7 +442,10 @@ def required_duty_points(drive: Drive, grid: CornerGrid, corners: np.ndarray, ta
                                  start=duty, mixed=lp.mixed)
             ss = pwm_steady_state(np.nan_to_num(duty), f[sl], lp.v_on, lp.r_on, lp.r_off, lp.v_off,
                                   lp.inductance, mixed=lp.mixed)
-            new = settled(drive, amb[sl], rf[sl], ss.rms)
+            # an eddy term's core loss heats the coil too: as the current that heats the
+            # copper at this temperature as much (the fixed point is the same)
+            heat_rms = ss.rms if ss.eddy_energy is None else np.sqrt(coil_heat(ss, lp.r_coil) / lp.r_coil)
+            new = settled(drive, amb[sl], rf[sl], heat_rms)
             moved = np.abs(new - temp)
             temp = new
             if not np.any(np.isfinite(moved) & (moved >= TEMP_TOL)):
@@ -630,12 +635,14 @@ def hold_toml(drive: Drive, c: Candidate) -> str:
 # --------------------------------------------------------------------------- the sweep
 def check_tunable(drive: Drive, who: str, live: bool = False) -> None:
     """Raise :class:`InputError` (naming the key) for a hold that tuning cannot step: a
-    current-mode hold, a closed-loop hold, an eddy-current term, and for live tuning
-    (``live``) a flux-linkage curve and a mixed-decay hold. ``who``: the start of the message
+    current-mode hold, a closed-loop hold, and for live tuning (``live``) a flux-linkage
+    curve, an eddy-current term and a mixed-decay hold. ``who``: the start of the message
     (``"coildrive tune sweeps"``, ``"live tuning steps"``); the offline sweep and live tuning
     share these refusals. The offline sweep takes a curve (every figure is the curve's exact
     orbit, :func:`coildrive.model.flux.orbit`, as in the design) and a mixed-decay hold (its
-    exact orbit; the live model at the bench point has no fast part yet)."""
+    exact orbit; the live model at the bench point has no fast part yet) and an eddy term
+    (its exact orbit, :func:`coildrive.model.eddy.orbit`; the coil's heat and power are the
+    copper's plus the core's eddy loss, :func:`coildrive.model.pwm.coil_heat`)."""
     if drive.hold.mode == "latch":
         raise InputError(drive.source, "hold.mode", f"{who} the PWM of a hold; a latching coil has "
                          "none: coildrive design sizes its pulses")
@@ -653,10 +660,10 @@ def check_tunable(drive: Drive, who: str, live: bool = False) -> None:
     if live and drive.hold.fast_fraction > 0:
         raise InputError(drive.source, "hold.fast_fraction", f"{who} a slow-decay hold only; tune "
                          "a mixed-decay hold offline (coildrive tune without --port)")
-    if drive.coil.eddy_resistance:
+    if drive.coil.eddy_resistance and live:
         key = "coil.eddy_time_constant" if drive.coil.eddy_time_constant else "coil.eddy_resistance"
-        raise InputError(drive.source, key, "tuning does not support an eddy-current term yet: "
-                         "tune without it, then design with it")
+        raise InputError(drive.source, key, "live tuning does not support an eddy-current term "
+                         "yet: tune offline (coildrive tune without --port)")
 
 
 def tune(drive: Drive, options: TuneOptions | None = None) -> TuneResult:
