@@ -96,23 +96,26 @@ def test_fast_decay_into_the_bus_against_solve_ivp(i0, v0, r_s, c):
 
     def drop(t, x):
         return x[0] - I_DROP
-    s = solve_ivp(f, [0, 1], [i0, v0], method="Radau", events=[zero, drop], rtol=1e-10, atol=1e-12,
-                  dense_output=True)
+    def g(t, x):   # ... and the charge, int i dt
+        return [*f(t, x[:2]), x[0]]
+    s = solve_ivp(g, [0, 1], [i0, v0, 0.0], method="Radau", events=[zero, drop], rtol=1e-10,
+                  atol=1e-12, dense_output=True)
     t_zero, t_drop = s.t_events[0][0], s.t_events[1][0]
     v_top = max(float(np.max(s.sol(np.linspace(0, t_zero, 20001))[1])), V_SUP)
     d = bus_decay.decay(i0, v0, I_DROP, V_SUP, r_s, c, r, l, V_D)
-    # scipy solve_ivp (Radau, rtol 1e-10): the times to 1e-7, the highest bus to 1e-7
+    # scipy solve_ivp (Radau, rtol 1e-10): the times, the highest bus and the charge to 1e-7
+    assert float(d.charge) == pytest.approx(s.y_events[0][0][2], rel=1e-7)
     assert float(d.zero_time) == pytest.approx(t_zero, rel=1e-7)
     assert float(d.drop_time) == pytest.approx(t_drop, rel=1e-7)
     assert float(d.bus_max) == pytest.approx(v_top, rel=1e-7)
 
 
-def _drive(tmp_path, extra: str = "", sink: str = "true"):
+def _drive(tmp_path, extra: str = "", sink: str = "true", r_s: str = "2 ohm"):
     text = (EXAMPLES / "dosing-valve-bridge-24v.toml").read_text()
     old = 'sink = false                 # a diode in the feed: the returned energy stays on the bus\n'
     assert old in text
-    text = text.replace(old, f'sink = {sink}\nsource_resistance = "2 ohm"\n' + extra)
-    p = tmp_path / "drive.toml"
+    text = text.replace(old, f'sink = {sink}\n' + (f'source_resistance = "{r_s}"\n' if r_s else "") + extra)
+    p = tmp_path / f"drive{bool(r_s):d}.toml"
     p.write_text(text)
     return p
 
@@ -122,7 +125,7 @@ def test_bridge_design_on_the_drooping_bus(tmp_path):
     assert r.returncode in (0, 1), r.stderr
     doc = json.loads(r.stdout)
     sup, rel = doc["supply"], doc["release"]
-    stiff = json.loads(run_cli("design", str(EXAMPLES / "dosing-valve-bridge-24v.toml"), "--json").stdout)
+    stiff = json.loads(run_cli("design", str(_drive(tmp_path, r_s="")), "--json").stdout)
     # the bus rises above the highest supply as the release pushes the current through R_s,
     # and the switches see it plus a body diode
     assert sup["highest_bus_v"] > 28.0 and sup["highest_bus_event"]
@@ -133,6 +136,12 @@ def test_bridge_design_on_the_drooping_bus(tmp_path):
     # on the stiff bus
     assert sup["lowest_bus_v"] < 20.0
     assert rel["time_s"] > stiff["release"]["time_s"]
+    assert rel["lockout_ticks"] >= stiff["release"]["lockout_ticks"]
+    # ... and carries more charge through the body diodes (2 V_d int i dt)
+    hold = {o["event"]: o for o in rel["turn_offs"]}["end of hold"]
+    assert hold["elements_j"]["diode"] > {o["event"]: o for o in stiff["release"]["turn_offs"]}[
+        "end of hold"]["elements_j"]["diode"]
+    assert rel["peak_switch_voltage_v"] > stiff["release"]["peak_switch_voltage_v"] + 1.0
     assert doc["pull_in"]["peak_time_s"] >= stiff["pull_in"]["peak_time_s"]
 
 

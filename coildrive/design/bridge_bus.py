@@ -46,8 +46,9 @@ def bridge_release(drive: Drive, grid, res, release: ReleaseResult, peak_time, p
     into the bus behind ``R_s`` and ``C`` (:mod:`coildrive.model.bus_decay`, exact), from
     :data:`BRIDGE_STARTS` starting buses over :func:`bus_range` at every point. The release
     figures take the longer drop-out and zero times (the bus starts below the source: the
-    design's release on the source voltage is not the safe side) and the higher switch
-    voltage (the bus rises above the source); the dict holds the highest bus for
+    design's release on the source voltage is not the safe side), the higher switch
+    voltage (the bus rises above the source) and the larger body-diode energy
+    (``2 V_d int i dt``, more charge on a slower decay); the dict holds the highest bus for
     :class:`~coildrive.design.result.SupplyResult`. Without a source resistance or a
     bridge, unchanged and ``{}``."""
     s = drive.supply
@@ -65,19 +66,28 @@ def bridge_release(drive: Drive, grid, res, release: ReleaseResult, peak_time, p
         runs = [bus_decay.decay(i0, v0, drive.release.current, lp.v_on, s.source_resistance,
                                 s.capacitance, lp.r_off, lp.inductance, v_d) for v0 in starts]
         bus = np.max([d.bus_max for d in runs], axis=0)
+        diodes = 2.0 * v_d * np.max([d.charge for d in runs], axis=0)   # the two body diodes
         v_sw = bus + v_d + (drive.board.sense.resistance * i0 if common else 0.0)
         k = worst(v_sw)
         for o in offs:
-            if o["event"] == event and v_sw[k] > o["switch_voltage_v"]:
+            if o["event"] != event:
+                continue
+            if v_sw[k] > o["switch_voltage_v"]:
                 o.update(switch_voltage_v=float(v_sw[k]), switch_voltage_corner=grid.label(k))
+            k_e = worst(diodes)
+            if diodes[k_e] > o["energy_j"]:
+                o.update(energy_j=float(diodes[k_e]), energy_corner=grid.label(k_e),
+                         elements_j={**o["elements_j"], "diode": float(np.max(diodes))})
         if float(np.max(bus)) > bus_top:
             k_top = worst(bus)
             bus_top, ev_top = float(bus[k_top]), event
         if event == "end of hold":
             t_drop = np.max([d.drop_time for d in runs], axis=0)
             t_zero = np.max([d.zero_time for d in runs], axis=0)
+    top = max(offs, key=lambda o: o["energy_j"])
     out = dict(turn_offs=offs, peak_switch_voltage_v=max(release.peak_switch_voltage_v,
-                                                         *(o["switch_voltage_v"] for o in offs)))
+                                                         *(o["switch_voltage_v"] for o in offs)),
+               energy_j=top["energy_j"], worst_turn_off=top["event"])
     k = worst(t_drop)
     if t_drop[k] > release.time_s:
         out.update(time_s=float(t_drop[k]), worst_corner=grid.label(k))

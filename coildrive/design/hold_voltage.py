@@ -151,8 +151,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     release = pumped_release(release, topo)
     release, bridge_bus = bridge_release(drive, env, res, release, long_, peak_end, thresholds.trip_current_a)
     pull_in = pull_in_result(drive, env, res, pk, shortest_peak_current(drive, res_low, short))
-    thermal = thermal_result(drive, plan, f_hold, period, peak_time, offs, hold.freewheel_power_w,
-                             hold.freewheel_elements_w)
+    thermal = thermal_result(drive, plan, f_hold, period, peak_time, release.turn_offs,
+                             hold.freewheel_power_w, hold.freewheel_elements_w)
     timer_result = TimerResult(clock_hz=board.timer.clock, bits=board.timer.bits,
                                prescaler=timer.prescaler, period_ticks=period,
                                compare_ticks=compare, frequency_hz=f_hold,

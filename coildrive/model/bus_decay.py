@@ -54,7 +54,8 @@ class FastDecay:
     """The fast decay of ``i0`` A from a bus at ``v0`` V (arrays): the time to the drop-out
     current and to zero (s), the highest bus (V: while the current flows, ``bus_top``,
     or the source's ``V_s`` it relaxes to after, if higher) and when (s; ``inf`` when that
-    is ``V_s``), and the bus when the current stops (V)."""
+    is ``V_s``), the bus when the current stops (V), and the charge the current carries
+    until then (C, ``int i dt``)."""
 
     drop_time: np.ndarray
     zero_time: np.ndarray
@@ -62,6 +63,7 @@ class FastDecay:
     bus_max: np.ndarray
     bus_max_time: np.ndarray
     bus_at_zero: np.ndarray
+    charge: np.ndarray
 
 
 def decay(i0, v0, i_drop, v_s, r_s, c, r, l, v_d) -> FastDecay:
@@ -99,4 +101,8 @@ def decay(i0, v0, i_drop, v_s, r_s, c, r, l, v_d) -> FastDecay:
     t_top = np.minimum(linear2.first_zero(z[1], zz[1], l1, l2), t_zero)
     v_top = at(t_top)[1]
     bus_max = np.maximum(v_top, v_s)
-    return FastDecay(t_drop, t_zero, v_top, bus_max, np.where(v_top > v_s, t_top, np.inf), at(t_zero)[1])
+    i_z, v_z = at(t_zero)
+    # int_0^t (x - x_ss) dt = A^-1 (x(t) - x(0)): the current's part, plus i_ss t
+    det = a[0] * a[3] - a[1] * a[2]
+    charge = i_ss * t_zero + (a[3] * (i_z - i0) - a[1] * (v_z - v0)) / det
+    return FastDecay(t_drop, t_zero, v_top, bus_max, np.where(v_top > v_s, t_top, np.inf), v_z, charge)
