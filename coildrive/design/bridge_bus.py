@@ -40,6 +40,33 @@ def bus_range(drive: Drive, res, peak_time, peak_end) -> tuple[np.ndarray, np.nd
     return np.minimum(v_peak, floor), np.asarray(lp.v_on, float)
 
 
+def drooped(drive: Drive) -> bool:
+    """True for a full bridge on the drooping bus."""
+    return drive.supply.droops and full_bridge(drive)
+
+
+def decays(drive: Drive, res, i0, peak_time, peak_end) -> list[bus_decay.FastDecay]:
+    """The fast decay of ``i0`` A at the points of ``res`` from each of
+    :data:`BRIDGE_STARTS` starting buses over :func:`bus_range`."""
+    s = drive.supply
+    lp = release_loop(res)
+    lo, hi = bus_range(drive, res, peak_time, peak_end)
+    starts = [lo + (hi - lo) * k / (BRIDGE_STARTS - 1) for k in range(BRIDGE_STARTS)]
+    return [bus_decay.decay(i0, v0, drive.release.current, lp.v_on, s.source_resistance,
+                            s.capacitance, lp.r_off, lp.inductance, lp.diode(drive)) for v0 in starts]
+
+
+def release_time(drive: Drive, res, peak_time) -> np.ndarray:
+    """The time (s) to the drop-out current from the top of the hold ripple at each point of
+    ``res``: on the drooping bus the longest over the starting buses (at least the stiff
+    bus's); otherwise ``res.release_time``."""
+    if not drooped(drive):
+        return res.release_time
+    runs = decays(drive, res, np.where(np.isfinite(res.hold.i_max), res.hold.i_max, 0.0), peak_time,
+                  res.peak_end_current)
+    return np.maximum(res.release_time, np.max([d.drop_time for d in runs], axis=0))
+
+
 def bridge_release(drive: Drive, grid, res, release: ReleaseResult, peak_time, peak_end,
                    trip_current: float) -> tuple[ReleaseResult, dict]:
     """A full bridge's turn-offs on the drooping bus: the fast decay pushes the current back
@@ -51,20 +78,15 @@ def bridge_release(drive: Drive, grid, res, release: ReleaseResult, peak_time, p
     (``2 V_d int i dt``, more charge on a slower decay); the dict holds the highest bus for
     :class:`~coildrive.design.result.SupplyResult`. Without a source resistance or a
     bridge, unchanged and ``{}``."""
-    s = drive.supply
-    if not (s.droops and full_bridge(drive)):
+    if not drooped(drive):
         return release, {}
-    lp = release_loop(res)
-    lo, hi = bus_range(drive, res, peak_time, peak_end)
-    v_d = lp.diode(drive)
+    v_d = release_loop(res).diode(drive)
     common = drive.board.sense.position != "coil"
-    starts = [lo + (hi - lo) * k / (BRIDGE_STARTS - 1) for k in range(BRIDGE_STARTS)]
     offs = [dict(o) for o in release.turn_offs]
     bus_top, ev_top, k_top = -np.inf, "", 0
     t_drop = t_zero = None
     for event, i0 in event_currents(res, peak_end, trip_current).items():
-        runs = [bus_decay.decay(i0, v0, drive.release.current, lp.v_on, s.source_resistance,
-                                s.capacitance, lp.r_off, lp.inductance, v_d) for v0 in starts]
+        runs = decays(drive, res, i0, peak_time, peak_end)
         bus = np.max([d.bus_max for d in runs], axis=0)
         diodes = 2.0 * v_d * np.max([d.charge for d in runs], axis=0)   # the two body diodes
         v_sw = bus + v_d + (drive.board.sense.resistance * i0 if common else 0.0)
