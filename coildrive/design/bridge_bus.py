@@ -29,7 +29,7 @@ def bus_range(drive: Drive, res, peak_time, peak_end) -> tuple[np.ndarray, np.nd
     most the source ``V_s``; at least the lowest bus of the peak (``peak_time`` s) or, once
     the coil draws no more than the larger of the end of the peak ``peak_end`` A and the
     hold's top, the floor :func:`~coildrive.model.supply.bus_floor` under it (the slow decay
-    of the hold's off-times draws nothing from the bus)."""
+    of the hold's off-times draws nothing from the bus); and never below ``-2 V_d``."""
     lp = res.loop
     b = bus_at(drive, lp, lp.inductance)
     v_peak, _ = bus_model.lowest_bus(np.broadcast_to(peak_time, lp.v_on.shape), b)
@@ -37,7 +37,9 @@ def bus_range(drive: Drive, res, peak_time, peak_end) -> tuple[np.ndarray, np.nd
     top = np.maximum(np.where(np.isfinite(end), end, 0.0),
                      np.where(np.isfinite(res.hold.i_max), res.hold.i_max, 0.0))
     floor = bus_model.bus_floor(lp.v_on, drive.supply.source_resistance, top)
-    return np.minimum(v_peak, floor), np.asarray(lp.v_on, float)
+    # never below -2 V_d: the bridge's own body diodes (Q2 then Q1) clamp the bus there
+    clamp = -2.0 * np.asarray(release_loop(res).diode(drive), float)
+    return np.maximum(np.minimum(v_peak, floor), clamp), np.asarray(lp.v_on, float)
 
 
 def drooped(drive: Drive) -> bool:

@@ -86,7 +86,16 @@ def decay(i0, v0, i_drop, v_s, r_s, c, r, l, v_d) -> FastDecay:
     v_lo = np.minimum(v0, v_s)
     with np.errstate(divide="ignore", invalid="ignore"):
         bound = l / r * np.log1p(r * i0 / (v_lo + 2.0 * v_d))
-    hi = np.minimum(bound, linear2.first_zero(z[0], zz[0], l1, l2))
+    hi = np.minimum(np.where(np.isfinite(bound) & (bound > 0), bound, np.inf),
+                    linear2.first_zero(z[0], zz[0], l1, l2))
+    # a bus down at -2 V_d (the bridge's own body diodes clamp it there) leaves no bound:
+    # grow a bracket from L/R until the current has crossed zero
+    hi = np.where(np.isfinite(hi), hi, l / r)
+    for _ in range(100):
+        short = at(hi)[0] > 0.0
+        if not short.any():
+            break
+        hi = np.where(short, 2.0 * hi, hi)
 
     def crossing(target, top):
         lo_t, hi_t = np.zeros_like(top), top.copy()
