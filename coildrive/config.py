@@ -1458,9 +1458,11 @@ def _open_loop_refusal(hold: Hold, armature: Armature | None) -> tuple[str, str]
 
 
 def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
-                 armature: Armature | None) -> None:
+                 armature: Armature | None, hold: Hold) -> None:
     """What the drooping bus (``supply.source_resistance``) is modelled with: a linear coil,
-    one switch (low or high side) and no moving armature. Any hold (the droop is the peak's;
+    one switch (low or high side) or a full bridge (a voltage-mode, slow-decay, open-loop
+    hold, on a supply that sinks: its fast decay into the bus is
+    :mod:`coildrive.model.bus_decay`), and no moving armature. Any hold (the droop is the peak's;
     a regulated hold takes it out of the hold) and any freewheel path (a clamp's release,
     which draws from the bus, is computed on the undrooped bus: the safe side). Anything
     else is refused in one line rather than designed on a stiff bus."""
@@ -1469,14 +1471,20 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     why = None
     if coil.flux_current:
         key, why = "coil.flux_current", "a flux-linkage curve"
-    elif switch.topology == "full_bridge":
-        key, why = "switch.topology", "a full bridge (its fast decay returns charge to the bus)"
+    elif switch.topology == "full_bridge" and not supply.sink:
+        key, why = "supply.sink", "a full bridge whose supply cannot sink (sink = false)"
+    elif switch.topology == "full_bridge" and hold.fast_fraction > 0:
+        key, why = "hold.fast_fraction", "a full bridge's mixed-decay hold"
+    elif switch.topology == "full_bridge" and hold.mode != "voltage":
+        key, why = "hold.mode", f"a full bridge with hold.mode = {hold.mode!r}"
+    elif switch.topology == "full_bridge" and hold.regulation == "closed_loop":
+        key, why = "hold.regulation", "a full bridge with a closed-loop hold"
     elif armature is not None:
         key, why = "armature", "a moving armature"
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
-                         f"{why}: expected source_resistance left out, or a linear coil, one switch "
-                         "and no [armature]")
+                         f"{why}: expected source_resistance left out, or a linear coil and no [armature] "
+                         "(a full bridge: a voltage-mode, slow-decay, open-loop hold, sink = true)")
 
 
 def _read_boost(s: "_Section") -> tuple:
@@ -1825,7 +1833,7 @@ def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
     _check_bridge(source, origins, switch, freewheel, supply, hold, armature)
     _eddy_limits(source, coil, hold, freewheel, switch, thermal, duty, supply)
-    _check_droop(source, coil, switch, supply, armature)
+    _check_droop(source, coil, switch, supply, armature, hold)
     _check_boost(source, origins, coil, switch, freewheel, supply, hold, pull_in, armature, duty)
     _flux_curve_limits(source, coil, hold, freewheel, switch, thermal, duty)
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:

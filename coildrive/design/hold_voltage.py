@@ -44,6 +44,7 @@ from .mechanics import armature_checks, armature_result
 from .peak import plan_peak, shortest_peak_current
 from .regulation import HoldPlan, coil_power_at, solve_hold, table_lookup, table_supplies
 from .result import ActuationPoint, Design, DutyTable, HoldResult, SplitDecayResult, TimerResult
+from .bridge_bus import bridge_bus_checks, bridge_release
 from .supply import steady_current, supply_checks, supply_result
 from .thermal_cycle import (cycle_caution, cycling, thermal_cautions, thermal_checks,
                             thermal_result)
@@ -148,9 +149,10 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     release = release_result(drive, env, res, offs)
     topo = topology_result(drive, env, res, peak_end, thresholds.trip_current_a)
     release = pumped_release(release, topo)
+    release, bridge_bus = bridge_release(drive, env, res, release, long_, peak_end, thresholds.trip_current_a)
     pull_in = pull_in_result(drive, env, res, pk, shortest_peak_current(drive, res_low, short))
-    thermal = thermal_result(drive, plan, f_hold, period, peak_time, offs, hold.freewheel_power_w,
-                             hold.freewheel_elements_w)
+    thermal = thermal_result(drive, plan, f_hold, period, peak_time, release.turn_offs,
+                             hold.freewheel_power_w, hold.freewheel_elements_w)
     timer_result = TimerResult(clock_hz=board.timer.clock, bits=board.timer.bits,
                                prescaler=timer.prescaler, period_ticks=period,
                                compare_ticks=compare, frequency_hz=f_hold,
@@ -168,8 +170,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     sense = board.supply_sense
     sup = supply_result(drive, env, res, long_, d_high,
                         lambda v: adc_code(v / sense.divider, board.adc.reference, board.adc.bits),
-                        thresholds.supply_min_code)
-    checks += supply_checks(sup)
+                        thresholds.supply_min_code, bridge_bus)
+    checks += supply_checks(sup) + bridge_bus_checks(drive, sup)
     boost = boost_result(drive, env, res_low, board.tick.rate) if drive.supply.boosted else None
     checks += boost_checks(drive, boost)
     notes += boost_cautions(boost)

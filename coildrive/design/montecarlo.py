@@ -19,6 +19,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..config import Drive
+from .bridge_bus import release_time
 from .evaluate import evaluate
 from .thermal_cycle import cycle_states, cycling
 
@@ -38,9 +39,11 @@ def _factors(rng: np.random.Generator, tol: float, n: int, kind: str) -> np.ndar
     return 1.0 + rng.uniform(-tol, tol, n)
 
 
-def _figures(res) -> tuple:
-    """The :data:`FIGURES` of evaluated points, in that order."""
-    return (res.pull_in_time, res.hold.mean, res.hold.ripple, res.coil_temp, res.release_time)
+def _figures(drive: Drive, res, peak_time) -> tuple:
+    """The :data:`FIGURES` of evaluated points, in that order (a full bridge's release on
+    the drooping bus: :func:`coildrive.design.bridge_bus.release_time`)."""
+    return (res.pull_in_time, res.hold.mean, res.hold.ripple, res.coil_temp,
+            release_time(drive, res, peak_time))
 
 
 def monte_carlo(drive: Drive, duty: float, frequency: float, peak_time: float, samples: int,
@@ -70,8 +73,9 @@ def monte_carlo(drive: Drive, duty: float, frequency: float, peak_time: float, s
         return cycle_states(drive, s, amb, r, l, duty_of(s), frequency, None, peak_of(s)).hottest
 
     if chunk is None:
-        values = _figures(evaluate(drive, supply, ambient, rf, lf, duty_of(supply), frequency,
-                                   peak_of(supply), coil_temp=coil_temp(supply, ambient, rf, lf)))
+        values = _figures(drive, evaluate(drive, supply, ambient, rf, lf, duty_of(supply), frequency,
+                                          peak_of(supply), coil_temp=coil_temp(supply, ambient, rf, lf)),
+                          peak_of(supply))
     else:
         values = tuple(np.empty(samples) for _ in FIGURES)
         for start in range(0, samples, chunk):
@@ -79,7 +83,7 @@ def monte_carlo(drive: Drive, duty: float, frequency: float, peak_time: float, s
             s = supply[sl]
             res = evaluate(drive, s, ambient[sl], rf[sl], lf[sl], duty_of(s), frequency, peak_of(s),
                            coil_temp=coil_temp(s, ambient[sl], rf[sl], lf[sl]))
-            for out, got in zip(values, _figures(res)):
+            for out, got in zip(values, _figures(drive, res, peak_of(s))):
                 out[sl] = got
     supply_all = supply
     del ambient, rf, lf  # the inputs' memory is free before the percentiles' copies

@@ -187,7 +187,10 @@ def _supply_rows(d: Design) -> list:
         ("capacitor ripple in the hold", f"{s.ripple_current_a * 1e3:.4g} mA rms",
          f"at {s.ripple_corner} (mean x sqrt(D(1-D)), coil ripple neglected); the hold's bus "
          f"sits up to {s.hold_droop_v * 1e3:.4g} mV low"),
-    ]
+    ] + ([] if s.highest_bus_v is None else [
+        ("highest bus at a turn-off", f"{s.highest_bus_v:.4g} V",
+         f"the bridge's fast decay back through the source resistance ({s.highest_bus_event}, "
+         f"{s.highest_bus_corner})")])
 
 
 def _regulation_how(d: Design) -> str:

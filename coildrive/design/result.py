@@ -444,7 +444,10 @@ class SupplyResult:
     lowest bus (J, largest over the corners), and the capacitor's RMS ripple current in
     the hold (A, largest over the corners; ``ripple_method`` says how); ``hold_droop_v``:
     the bus's steady droop in the hold, ``R_s`` x the source's average current (V, largest
-    over the corners; the hold figures are computed on the undrooped supply)."""
+    over the corners; the hold figures are computed on the undrooped supply).
+    A full bridge: ``highest_bus_v``, the bus at its highest as a fast decay pushes the
+    coil's current back through ``R_s`` (V, over every turn-off, corner and starting bus;
+    ``highest_bus_event``, ``highest_bus_corner``); ``None`` otherwise."""
 
     source_resistance_ohm: float
     capacitance_f: float
@@ -460,6 +463,9 @@ class SupplyResult:
     ripple_corner: str
     ripple_method: str
     hold_droop_v: float
+    highest_bus_v: float | None = None
+    highest_bus_event: str | None = None
+    highest_bus_corner: str | None = None
 
 
 @dataclass(frozen=True)

@@ -32,7 +32,8 @@ def through_clamp(drive: Drive) -> bool:
     return drive.freewheel.type == "clamp"
 
 
-def _bus(drive: Drive, lp, inductance) -> bus_model.Bus:
+def bus_at(drive: Drive, lp, inductance) -> bus_model.Bus:
+    """The drooping bus of the peak at the points of the loop ``lp`` (:func:`coildrive.model.supply.bus`)."""
     s = drive.supply
     return bus_model.bus(lp.v_on, s.source_resistance, s.capacitance, lp.r_on, inductance)
 
@@ -44,7 +45,7 @@ def rise_time(drive: Drive, lp, i_target, inductance) -> np.ndarray:
         return boost.rise_time(drive, lp, i_target, inductance)
     if not drive.supply.droops:
         return rl.rise_time(i_target, 0.0, lp.v_on, lp.r_on, inductance)
-    return bus_model.rise_time(i_target, _bus(drive, lp, inductance))
+    return bus_model.rise_time(i_target, bus_at(drive, lp, inductance))
 
 
 def rise_current(drive: Drive, lp, t, inductance) -> np.ndarray:
@@ -53,7 +54,7 @@ def rise_current(drive: Drive, lp, t, inductance) -> np.ndarray:
         return boost.rise_current(drive, lp, t, inductance)
     if not drive.supply.droops:
         return rl.rise_current(t, 0.0, lp.v_on, lp.r_on, inductance)
-    return bus_model.current(t, _bus(drive, lp, inductance))
+    return bus_model.current(t, bus_at(drive, lp, inductance))
 
 
 def steady_current(drive: Drive, lp) -> np.ndarray:
@@ -64,7 +65,8 @@ def steady_current(drive: Drive, lp) -> np.ndarray:
     return lp.v_on / (lp.r_on + drive.supply.source_resistance)
 
 
-def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_code: int) -> SupplyResult | None:
+def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_code: int,
+                  bridge_bus: dict | None = None) -> SupplyResult | None:
     """The supply's figures over the points of ``res`` (the longest peak ``peak_time`` s and
     the hold duty ``duty`` at each point): the lowest bus during the peak and its corner,
     the energy the capacitor gives up down to it, the capacitor's RMS ripple current in the
@@ -76,12 +78,13 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
     :func:`~coildrive.model.supply.bus_floor` of the current after the peak (the end of the
     peak's, or the hold's top if higher), and without split decay the hold's off-times draw
     from the bus too (the hold's bus sits ``R_s`` x the mean low; the capacitor carries the
-    coil's ripple)."""
+    coil's ripple). ``bridge_bus``: a full bridge's highest bus
+    (:func:`coildrive.design.bridge_bus.bridge_release`)."""
     s = drive.supply
     if not s.droops:
         return None
     lp = res.loop
-    b = _bus(drive, lp, lp.inductance)
+    b = bus_at(drive, lp, lp.inductance)
     peak = np.broadcast_to(peak_time, lp.v_on.shape)
     v_low, when = bus_model.lowest_bus(peak, b)
     clamp = through_clamp(drive)
@@ -110,7 +113,7 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
         supply_min_code=supply_min_code if drive.board.supply_sense else None,
         capacitor_energy_j=float(energy[k_e]), capacitor_energy_corner=grid.label(k_e),
         ripple_current_a=float(ripple[k_r]), ripple_corner=grid.label(k_r), ripple_method=CLAMP_RIPPLE_METHOD if off_draws else RIPPLE_METHOD,
-        hold_droop_v=float(np.max(hold_droop)))
+        hold_droop_v=float(np.max(hold_droop)), **(bridge_bus or {}))
 
 
 def supply_checks(sup: SupplyResult | None) -> list[Check]:

@@ -42,6 +42,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from . import linear2
+
 #: Bisection steps for the rise time: the bracket shrinks 2^-60, far below a tick.
 BISECTION_STEPS = 60
 
@@ -74,30 +76,19 @@ class Bus:
 def bus(v_s, r_s, c, r, l) -> Bus:
     """The circuit of the module docstring at each point (``r_s`` > 0, ``c`` > 0)."""
     v_s, r_s, c, r, l = np.broadcast_arrays(*(np.asarray(x, float) for x in (v_s, r_s, c, r, l)))
-    a, b = -r / l, -1.0 / (r_s * c)             # the diagonal of A
-    half = 0.5 * (a + b)
-    disc = np.sqrt((0.5 * (a - b)).astype(complex) ** 2 - 1.0 / (l * c))   # (tr/2)^2 - det
-    l1, l2 = half + disc, half - disc
-    swap = l2.real > l1.real
-    l1, l2 = np.where(swap, l2, l1), np.where(swap, l1, l2)
+    l1, l2 = linear2.eigenvalues(*_matrix(r_s, c, r, l))
     i_ss = v_s / (r + r_s)
     return Bus(v_s, r_s, c, r, l, l1, l2, i_ss, v_s - r_s * i_ss)
 
 
+def _matrix(r_s, c, r, l) -> tuple:
+    return -r / l, 1.0 / l, -1.0 / c, -1.0 / (r_s * c)
+
+
 def state(t, b: Bus) -> tuple[np.ndarray, np.ndarray]:
     """``(i A, v V)`` at ``t`` s after switch-on (Putzer's formula, module docstring)."""
-    t = np.asarray(t, float)
-    e1 = np.exp(b.l1 * t)
-    x = (b.l1 - b.l2) * t
-    with np.errstate(invalid="ignore", divide="ignore"):
-        ratio = np.where(np.abs(x) > 1e-12, -np.expm1(-x) / np.where(x == 0, 1.0, x), 1.0 - 0.5 * x)
-    f = e1 * t * ratio                           # (e^{l1 t} - e^{l2 t}) / (l1 - l2)
-    y_i, y_v = -b.i_ss, b.v_s - b.v_ss           # x(0) - x_ss
-    a11, a12 = -b.r / b.l, 1.0 / b.l
-    a21, a22 = -1.0 / b.c, -1.0 / (b.r_s * b.c)
-    i = b.i_ss + (e1 * y_i + f * ((a11 - b.l1) * y_i + a12 * y_v)).real
-    v = b.v_ss + (e1 * y_v + f * (a21 * y_i + (a22 - b.l1) * y_v)).real
-    return i, v
+    di, dv = linear2.apply(t, _matrix(b.r_s, b.c, b.r, b.l), b.l1, b.l2, (-b.i_ss, b.v_s - b.v_ss))
+    return b.i_ss + di, b.v_ss + dv
 
 
 def rise_time(i_target, b: Bus) -> np.ndarray:

@@ -1,0 +1,139 @@
+"""A full bridge on the drooping bus (``supply.source_resistance``): its turn-offs push the
+coil's current back into the bus behind the source resistance and the bulk capacitor, so
+the bus rises above the source while the release starts from a bus that may sit below it
+(:mod:`coildrive.model.bus_decay`, closed form)."""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+
+import numpy as np
+
+from ..config import Drive
+from ..model import bus_decay
+from ..model import supply as bus_model
+from ..model.circuit import full_bridge
+from .figures import worst
+from .result import Check, ReleaseResult, SupplyResult
+from .supply import bus_at
+from .turnoff import event_currents, release_loop
+
+#: Starting buses tried for a bridge's fast decay, evenly over the range the bus can be in
+#: at a turn-off (the state is affine in the starting bus at every moment).
+BRIDGE_STARTS = 5
+
+
+def bus_range(drive: Drive, res, peak_time, peak_end) -> tuple[np.ndarray, np.ndarray]:
+    """``(lowest, highest)`` V the bus can be at when a full bridge turns off, per point: at
+    most the source ``V_s``; at least the lowest bus of the peak (``peak_time`` s) or, once
+    the coil draws no more than the larger of the end of the peak ``peak_end`` A and the
+    hold's top, the floor :func:`~coildrive.model.supply.bus_floor` under it (the slow decay
+    of the hold's off-times draws nothing from the bus); and never below ``-2 V_d``."""
+    lp = res.loop
+    b = bus_at(drive, lp, lp.inductance)
+    v_peak, _ = bus_model.lowest_bus(np.broadcast_to(peak_time, lp.v_on.shape), b)
+    end = np.broadcast_to(np.asarray(peak_end, float), lp.v_on.shape)
+    top = np.maximum(np.where(np.isfinite(end), end, 0.0),
+                     np.where(np.isfinite(res.hold.i_max), res.hold.i_max, 0.0))
+    floor = bus_model.bus_floor(lp.v_on, drive.supply.source_resistance, top)
+    # never below -2 V_d: the bridge's own body diodes (Q2 then Q1) clamp the bus there
+    clamp = -2.0 * np.asarray(release_loop(res).diode(drive), float)
+    return np.maximum(np.minimum(v_peak, floor), clamp), np.asarray(lp.v_on, float)
+
+
+def drooped(drive: Drive) -> bool:
+    """True for a full bridge on the drooping bus."""
+    return drive.supply.droops and full_bridge(drive)
+
+
+def decays(drive: Drive, res, i0, peak_time, peak_end) -> list[bus_decay.FastDecay]:
+    """The fast decay of ``i0`` A at the points of ``res`` from each of
+    :data:`BRIDGE_STARTS` starting buses over :func:`bus_range`."""
+    s = drive.supply
+    lp = release_loop(res)
+    lo, hi = bus_range(drive, res, peak_time, peak_end)
+    starts = [lo + (hi - lo) * k / (BRIDGE_STARTS - 1) for k in range(BRIDGE_STARTS)]
+    return [bus_decay.decay(i0, v0, drive.release.current, lp.v_on, s.source_resistance,
+                            s.capacitance, lp.r_off, lp.inductance, lp.diode(drive)) for v0 in starts]
+
+
+def release_time(drive: Drive, res, peak_time) -> np.ndarray:
+    """The time (s) to the drop-out current from the top of the hold ripple at each point of
+    ``res``: on the drooping bus the longest over the starting buses (at least the stiff
+    bus's); otherwise ``res.release_time``."""
+    if not drooped(drive):
+        return res.release_time
+    runs = decays(drive, res, np.where(np.isfinite(res.hold.i_max), res.hold.i_max, 0.0), peak_time,
+                  res.peak_end_current)
+    return np.maximum(res.release_time, np.max([d.drop_time for d in runs], axis=0))
+
+
+def bridge_release(drive: Drive, grid, res, release: ReleaseResult, peak_time, peak_end,
+                   trip_current: float) -> tuple[ReleaseResult, dict]:
+    """A full bridge's turn-offs on the drooping bus: the fast decay pushes the current back
+    into the bus behind ``R_s`` and ``C`` (:mod:`coildrive.model.bus_decay`, exact), from
+    :data:`BRIDGE_STARTS` starting buses over :func:`bus_range` at every point. The release
+    figures take the longer drop-out and zero times (the bus starts below the source: the
+    design's release on the source voltage is not the safe side), the higher switch
+    voltage (the bus rises above the source) and the larger body-diode energy
+    (``2 V_d int i dt``, more charge on a slower decay); the dict holds the highest bus for
+    :class:`~coildrive.design.result.SupplyResult`. Without a source resistance or a
+    bridge, unchanged and ``{}``."""
+    if not drooped(drive):
+        return release, {}
+    v_d = release_loop(res).diode(drive)
+    common = drive.board.sense.position != "coil"
+    offs = [dict(o) for o in release.turn_offs]
+    bus_top, ev_top, k_top = -np.inf, "", 0
+    t_drop = t_zero = None
+    for event, i0 in event_currents(res, peak_end, trip_current).items():
+        runs = decays(drive, res, i0, peak_time, peak_end)
+        bus = np.max([d.bus_max for d in runs], axis=0)
+        diodes = 2.0 * v_d * np.max([d.charge for d in runs], axis=0)   # the two body diodes
+        v_sw = bus + v_d + (drive.board.sense.resistance * i0 if common else 0.0)
+        k = worst(v_sw)
+        for o in offs:
+            if o["event"] != event:
+                continue
+            if v_sw[k] > o["switch_voltage_v"]:
+                o.update(switch_voltage_v=float(v_sw[k]), switch_voltage_corner=grid.label(k))
+            k_e = worst(diodes)
+            if diodes[k_e] > o["energy_j"]:
+                o.update(energy_j=float(diodes[k_e]), energy_corner=grid.label(k_e),
+                         elements_j={**o["elements_j"], "diode": float(np.max(diodes))})
+        if float(np.max(bus)) > bus_top:
+            k_top = worst(bus)
+            bus_top, ev_top = float(bus[k_top]), event
+        if event == "end of hold":
+            t_drop = np.max([d.drop_time for d in runs], axis=0)
+            t_zero = np.max([d.zero_time for d in runs], axis=0)
+    top = max(offs, key=lambda o: o["energy_j"])
+    out = dict(turn_offs=offs, peak_switch_voltage_v=max(release.peak_switch_voltage_v,
+                                                         *(o["switch_voltage_v"] for o in offs)),
+               energy_j=top["energy_j"], worst_turn_off=top["event"])
+    k = worst(t_drop)
+    if t_drop[k] > release.time_s:
+        out.update(time_s=float(t_drop[k]), worst_corner=grid.label(k))
+    zero = max(release.zero_time_s, float(np.max(t_zero)))
+    out.update(zero_time_s=zero, lockout_ticks=math.ceil(zero * drive.board.tick.rate - 1e-9) + 1)
+    return dataclasses.replace(release, **out), dict(
+        highest_bus_v=bus_top, highest_bus_event=ev_top, highest_bus_corner=grid.label(k_top))
+
+
+
+
+def bridge_bus_checks(drive: Drive, sup: SupplyResult | None) -> list[Check]:
+    """``capacitor_voltage``: a full bridge's highest bus on the drooping bus against the
+    bulk capacitor's rating (a warning when the drive gives none). The switches' check
+    takes the same bus through the release's switch voltage."""
+    if sup is None or sup.highest_bus_v is None:
+        return []
+    rating = drive.supply.capacitor_voltage
+    where = f"the bus rises to {sup.highest_bus_v:.4g} V ({sup.highest_bus_event}, {sup.highest_bus_corner})"
+    if not rating > 0:
+        return [Check("capacitor_voltage", False, f"{where}; the drive gives no supply.capacitor_voltage "
+                      "to check it against", severity="warning")]
+    ok = sup.highest_bus_v <= rating
+    return [Check("capacitor_voltage", ok, f"{where} vs the bulk capacitor's {rating:.4g} V rating"
+                  + ("" if ok else " -- a higher-rated or larger capacitor, a lower source resistance"))]
