@@ -1237,9 +1237,6 @@ def _flux_curve_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel
     if switch.topology == "full_bridge" and hold.fast_fraction > 0:
         raise InputError(source, "hold.fast_fraction", "mixed decay with a flux-linkage curve "
                          "(coil.flux_current) is not supported yet: leave it out (slow decay)")
-    if hold.mode == "current":
-        raise InputError(source, "hold.mode", "\"current\" with a flux-linkage curve "
-                         "(coil.flux_current) is not supported yet: use mode = \"voltage\"")
 
 
 def _eddy_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel, switch: Switch,
