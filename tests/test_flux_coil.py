@@ -259,22 +259,6 @@ def test_live_tune_refuses_a_curve_in_one_line(args):
     assert len(lines) == 1 and "coil.flux_current" in lines[0] and "Traceback" not in r.stderr, r.stderr
 
 
-@pytest.mark.parametrize("edit, key", [
-    (('[hold]', '[hold]\nregulation = "closed_loop"'), "hold.regulation"),
-])
-def test_what_a_curve_does_not_work_with_yet_is_one_line(tmp_path, edit, key):
-    """The closed loop (its gains come from a linear coil) is not modelled with a
-    flux-linkage curve yet: refused, naming the key."""
-    text = EXAMPLE.read_text()
-    assert edit[0] in text
-    path = tmp_path / "curve.toml"
-    path.write_text(text.replace(edit[0], edit[1], 1))
-    r = run_cli("design", str(path), cwd=EXAMPLES)
-    assert r.returncode == 2, (r.stdout, r.stderr)
-    lines = r.stderr.strip().splitlines()
-    assert len(lines) == 1 and f"{key}:" in lines[0] and "flux-linkage curve" in lines[0], r.stderr
-
-
 def test_split_decay_actuation_follows_both_paths(tmp_path):
     """A saturating coil with split decay through simulate: the hold's last period is the
     slow loop's exact orbit (its mean within 0.5 %: the samples' trapezoid), the bypass
