@@ -274,3 +274,28 @@ def test_hysteretic_with_a_curve_matches_ngspice(tmp_path):
     assert res["iavg"] == pytest.approx(float(ss.mean), rel=0.01), "mean (ngspice)"
     assert abs(res["imax"] - hi) <= 0.01 * (hi - lo) + 1e-9 and abs(res["imin"] - lo) <= 0.01 * (hi - lo), \
         (res["imin"], res["imax"])
+
+
+def test_sized_band_is_the_nearest_fitting_one(designed):
+    # the curve's band search (48 log-spaced bands, then every band between the pick's
+    # neighbours) ends at a band whose neighbours both fit worse: with one minimum of the
+    # nominal's distance to hold.frequency (the frequency falls as the band widens), the
+    # band every-band search finds
+    import math
+
+    from coildrive.design.corners import corner_grid
+    from coildrive.design.hold_current import _fits, _sizing_loops
+
+    drive, _, d = designed
+    cm = d["current_mode"]
+    assert cm["sized_from_frequency"]
+    lsb, band = cm["code_current_a"], cm["band_codes"]
+    c0 = math.ceil(drive.hold.current / lsb - 1e-9)
+    lp = _sizing_loops(drive, corner_grid(drive))
+    b = np.array([band - 1, band, band + 1])
+    lo = np.maximum(c0 - b // 2, 1)[:, None]
+    ss = hysteretic_steady_state(lo * lsb, (lo + b[:, None]) * lsb, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
+                                 lp.inductance, drive.hold.sense_delay)
+    err = np.abs(np.log(ss.frequency[:, 0] / drive.hold.frequency))
+    fits = _fits(drive, ss.frequency, ss.regulated)
+    assert fits[1] and all(err[1] <= err[k] or not fits[k] for k in (0, 2)), (b, err, fits)

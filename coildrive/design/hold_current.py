@@ -160,12 +160,18 @@ def _sizing_loops(drive: Drive, grid: CornerGrid):
     return loop(drive, sup[None, :], temp[None, :], rf[None, :], lf[None, :])
 
 
+def _fits(drive: Drive, freq: np.ndarray, regulated: np.ndarray) -> np.ndarray:
+    """Per row of ``freq`` (candidates x [nominal, corners...]): regulated everywhere and
+    every corner inside the allowed switching range."""
+    f_lo, f_hi, _ = allowed_range(drive)
+    return regulated.all(axis=1) & (freq[:, 1:].min(axis=1) >= f_lo) & (freq[:, 1:].max(axis=1) <= f_hi)
+
+
 def _pick(drive: Drive, freq: np.ndarray, regulated: np.ndarray) -> int:
     """Row of ``freq`` (candidates x [nominal, corners...]) to use: among the candidates
     whose every corner is regulated and inside the allowed range, the one whose nominal
     frequency is nearest ``hold.frequency`` (in ratio); if none fits, the nearest of all."""
-    f_lo, f_hi, _ = allowed_range(drive)
-    ok = regulated.all(axis=1) & (freq[:, 1:].min(axis=1) >= f_lo) & (freq[:, 1:].max(axis=1) <= f_hi)
+    ok = _fits(drive, freq, regulated)
     with np.errstate(divide="ignore", invalid="ignore"):
         err = np.abs(np.log(freq[:, 0] / drive.hold.frequency))
     err = np.where(np.isfinite(err) & regulated[:, 0], err, np.inf)
@@ -182,21 +188,23 @@ def _size_band(drive: Drive, grid: CornerGrid, lsb: float, c0: int, full: int) -
         lo = np.maximum(c0 - b // 2, 1)[:, None]
         ss = hysteretic_steady_state(lo * lsb, (lo + b[:, None]) * lsb, lp.v_on, lp.r_on, lp.r_off,
                                      lp.v_off, lp.inductance, drive.hold.sense_delay)
-        return _pick(drive, ss.frequency, ss.regulated)
+        return _pick(drive, ss.frequency, ss.regulated), bool(np.any(_fits(drive, ss.frequency,
+                                                                           ss.regulated)))
 
     n = max(2, min(full - c0, 4096))
+    b = np.arange(1, n + 1)
     if isinstance(lp.inductance, FluxCoil) and n > 64:
         # a saturating coil's segments are quadratures, not logarithms: every band at
         # every point would take seconds. The frequency falls as the band widens at every
         # point, so the bands that fit form one run and the nominal's distance to
-        # hold.frequency has one minimum: pick among 48 log-spaced bands, then among every
-        # band between the pick's neighbours (the same band the full search finds).
+        # hold.frequency has one minimum there: pick among 48 log-spaced bands, then among
+        # every band between the pick's neighbours (the band the full search finds). Where
+        # none of the 48 fits, the run (if any) may lie between two of them: all bands.
         coarse = np.unique(np.round(np.geomspace(1, n, 48)).astype(int))
-        k = pick(coarse)
-        b = np.arange(coarse[max(k - 1, 0)], coarse[min(k + 1, coarse.size - 1)] + 1)
-    else:
-        b = np.arange(1, n + 1)
-    return int(b[pick(b)])
+        k, fits = pick(coarse)
+        if fits:
+            b = np.arange(coarse[max(k - 1, 0)], coarse[min(k + 1, coarse.size - 1)] + 1)
+    return int(b[pick(b)[0]])
 
 
 def _size_off_time(drive: Drive, grid: CornerGrid, peak_a: float) -> float:
