@@ -233,7 +233,8 @@ def bench_startup(runs: int = 15) -> None:
 
 def bench_flux_design(runs: int = 5) -> None:
     """``coildrive design`` of the saturating-coil example against the same file with the
-    linear coil of its small-signal inductance, paired: median CPU (user + system) and
+    linear coil of its small-signal inductance -- with its fixed hold, a current-mode hold
+    and the closed loop -- paired: median CPU (user + system) and
     wall, against the 2 s target (CPU is the figure that a busy machine does not move)."""
     import tempfile
 
@@ -241,11 +242,18 @@ def bench_flux_design(runs: int = 5) -> None:
     sat = ROOT / "examples" / "saturating-valve-24v.toml"
     text = "\n".join(line for line in sat.read_text().splitlines()
                      if not line.startswith(("flux_current", "flux_linkage", '                "')))
+    text = text.replace('reference_temp = "20 degC"', 'reference_temp = "20 degC"\ninductance = "121.2 mH"')
+    # the fixed hold, the current-mode hold (off-time control: the board senses under the
+    # switch) and the closed loop, each with the curve against the linear coil
+    holds = {"": "", "a current-mode hold": 'mode = "current"\ncontrol = "off_time"\n',
+             "a closed-loop hold": 'regulation = "closed_loop"\n'}
     with tempfile.TemporaryDirectory() as tmp:
-        linear = Path(tmp) / "linear.toml"
-        linear.write_text(text.replace('reference_temp = "20 degC"',
-                                       'reference_temp = "20 degC"\ninductance = "121.2 mH"'))
-        _design_pair("a flux-linkage curve", linear, sat, "the linear coil", runs, env)
+        for k, (what, keys) in enumerate(holds.items()):
+            linear, curve = Path(tmp) / f"linear{k}.toml", Path(tmp) / f"curve{k}.toml"
+            linear.write_text(text.replace("[hold]\n", "[hold]\n" + keys, 1))
+            curve.write_text(sat.read_text().replace("[hold]\n", "[hold]\n" + keys, 1))
+            _design_pair("a flux-linkage curve" + (f" and {what}" if what else ""), linear, curve,
+                         "the linear coil", runs, env)
 
 
 def _design_pair(what: str, linear: Path, curve: Path, base: str, runs: int, env: dict) -> None:

@@ -1230,16 +1230,9 @@ def _flux_curve_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel
     """What a flux-linkage curve does not yet work with: one line naming the key."""
     if not coil.flux_current:
         return
-    if hold.regulation == "closed_loop":
-        raise InputError(source, "hold.regulation", "\"closed_loop\" with a flux-linkage curve "
-                         "(coil.flux_current) is not supported yet: its gains come from a linear "
-                         "coil; use \"fixed\" or \"supply_table\"")
     if switch.topology == "full_bridge" and hold.fast_fraction > 0:
         raise InputError(source, "hold.fast_fraction", "mixed decay with a flux-linkage curve "
                          "(coil.flux_current) is not supported yet: leave it out (slow decay)")
-    if hold.mode == "current":
-        raise InputError(source, "hold.mode", "\"current\" with a flux-linkage curve "
-                         "(coil.flux_current) is not supported yet: use mode = \"voltage\"")
 
 
 def _eddy_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel, switch: Switch,

@@ -219,7 +219,6 @@ def test_emulated_device_runs_the_curve():
     ('reference_temp = "20 degC"', 'reference_temp = "20 degC"\ninductance = "120 mH"'),
     ('"5.93 mWb"', '"50 mWb"'),
     ('flux_current = [0, 0.05,', 'flux_current = [0, 0.07, 0.05,'),
-    ('[hold]', '[hold]\nmode = "current"'),
     ('"52.0 mWb"]', '"52.0 mWb", "53 mWb"]'),
 ])
 def test_bad_curves_are_one_line_exit_2(tmp_path, edit, key):
@@ -233,7 +232,7 @@ def test_bad_curves_are_one_line_exit_2(tmp_path, edit, key):
     assert r.returncode == 2, (r.stdout, r.stderr)
     lines = r.stderr.strip().splitlines()
     assert len(lines) == 1 and "Traceback" not in r.stderr, r.stderr
-    assert "coil." in lines[0] or "hold.mode" in lines[0], lines[0]
+    assert "coil." in lines[0], lines[0]
 
 
 def test_armature_inductances_with_a_curve_are_refused(tmp_path):
@@ -258,22 +257,6 @@ def test_live_tune_refuses_a_curve_in_one_line(args):
     assert r.returncode == 2, (r.stdout, r.stderr)
     lines = r.stderr.strip().splitlines()
     assert len(lines) == 1 and "coil.flux_current" in lines[0] and "Traceback" not in r.stderr, r.stderr
-
-
-@pytest.mark.parametrize("edit, key", [
-    (('[hold]', '[hold]\nregulation = "closed_loop"'), "hold.regulation"),
-])
-def test_what_a_curve_does_not_work_with_yet_is_one_line(tmp_path, edit, key):
-    """The closed loop (its gains come from a linear coil) is not modelled with a
-    flux-linkage curve yet: refused, naming the key."""
-    text = EXAMPLE.read_text()
-    assert edit[0] in text
-    path = tmp_path / "curve.toml"
-    path.write_text(text.replace(edit[0], edit[1], 1))
-    r = run_cli("design", str(path), cwd=EXAMPLES)
-    assert r.returncode == 2, (r.stdout, r.stderr)
-    lines = r.stderr.strip().splitlines()
-    assert len(lines) == 1 and f"{key}:" in lines[0] and "flux-linkage curve" in lines[0], r.stderr
 
 
 def test_split_decay_actuation_follows_both_paths(tmp_path):

@@ -45,6 +45,7 @@ from ..errors import InputError
 from ..model.circuit import loop, split_decay
 from ..model.current_mode import (CurrentModeSteadyState, hysteretic_steady_state,
                                   off_time_steady_state)
+from ..model.flux import FluxCoil
 from ..model.losses import HoldLosses, element_powers
 from ..model.rl import decay_current, decay_time, rise_current, rise_time
 from ..model.thermal import closed_form_temperature, settle_temperature
@@ -159,12 +160,18 @@ def _sizing_loops(drive: Drive, grid: CornerGrid):
     return loop(drive, sup[None, :], temp[None, :], rf[None, :], lf[None, :])
 
 
+def _fits(drive: Drive, freq: np.ndarray, regulated: np.ndarray) -> np.ndarray:
+    """Per row of ``freq`` (candidates x [nominal, corners...]): regulated everywhere and
+    every corner inside the allowed switching range."""
+    f_lo, f_hi, _ = allowed_range(drive)
+    return regulated.all(axis=1) & (freq[:, 1:].min(axis=1) >= f_lo) & (freq[:, 1:].max(axis=1) <= f_hi)
+
+
 def _pick(drive: Drive, freq: np.ndarray, regulated: np.ndarray) -> int:
     """Row of ``freq`` (candidates x [nominal, corners...]) to use: among the candidates
     whose every corner is regulated and inside the allowed range, the one whose nominal
     frequency is nearest ``hold.frequency`` (in ratio); if none fits, the nearest of all."""
-    f_lo, f_hi, _ = allowed_range(drive)
-    ok = regulated.all(axis=1) & (freq[:, 1:].min(axis=1) >= f_lo) & (freq[:, 1:].max(axis=1) <= f_hi)
+    ok = _fits(drive, freq, regulated)
     with np.errstate(divide="ignore", invalid="ignore"):
         err = np.abs(np.log(freq[:, 0] / drive.hold.frequency))
     err = np.where(np.isfinite(err) & regulated[:, 0], err, np.inf)
@@ -176,11 +183,28 @@ def _pick(drive: Drive, freq: np.ndarray, regulated: np.ndarray) -> int:
 def _size_band(drive: Drive, grid: CornerGrid, lsb: float, c0: int, full: int) -> int:
     """Band in codes (centred on the hold current) for :func:`_pick`."""
     lp = _sizing_loops(drive, grid)
-    b = np.arange(1, max(2, min(full - c0, 4096)) + 1)[:, None]
-    lo = np.maximum(c0 - b // 2, 1)
-    ss = hysteretic_steady_state(lo * lsb, (lo + b) * lsb, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
-                                 lp.inductance, drive.hold.sense_delay)
-    return int(b[_pick(drive, ss.frequency, ss.regulated), 0])
+
+    def pick(b):
+        lo = np.maximum(c0 - b // 2, 1)[:, None]
+        ss = hysteretic_steady_state(lo * lsb, (lo + b[:, None]) * lsb, lp.v_on, lp.r_on, lp.r_off,
+                                     lp.v_off, lp.inductance, drive.hold.sense_delay)
+        return _pick(drive, ss.frequency, ss.regulated), bool(np.any(_fits(drive, ss.frequency,
+                                                                           ss.regulated)))
+
+    n = max(2, min(full - c0, 4096))
+    b = np.arange(1, n + 1)
+    if isinstance(lp.inductance, FluxCoil) and n > 64:
+        # a saturating coil's segments are quadratures, not logarithms: every band at
+        # every point would take seconds. The frequency falls as the band widens at every
+        # point, so the bands that fit form one run and the nominal's distance to
+        # hold.frequency has one minimum there: pick among 48 log-spaced bands, then among
+        # every band between the pick's neighbours (the band the full search finds). Where
+        # none of the 48 fits, the run (if any) may lie between two of them: all bands.
+        coarse = np.unique(np.round(np.geomspace(1, n, 48)).astype(int))
+        k, fits = pick(coarse)
+        if fits:
+            b = np.arange(coarse[max(k - 1, 0)], coarse[min(k + 1, coarse.size - 1)] + 1)
+    return int(b[pick(b)[0]])
 
 
 def _size_off_time(drive: Drive, grid: CornerGrid, peak_a: float) -> float:
@@ -202,13 +226,16 @@ def choose_thresholds(drive: Drive, grid: CornerGrid, peak_time: float = 0.0) ->
     c0 = max(1, math.ceil(h.current / lsb - 1e-9))
     delay = h.sense_delay
     timer = drive.board.timer
+    # codes tried at once, lowest first (the answer is the first that holds): a saturating
+    # coil's segments are quadratures, so fewer at a time (the answer lies a few codes up)
+    chunk = 16 if drive.coil.flux_current else 256
     if h.control == "hysteretic":
         sized = h.band <= 0
         band = _size_band(drive, grid, lsb, c0, full) if sized else max(1, round(h.band / lsb))
         start = max(1, c0 - band - 2)
         code = None
         while code is None and start + band <= full:
-            codes = np.arange(start, min(full - band, start + 255) + 1)
+            codes = np.arange(start, min(full - band, start + chunk - 1) + 1)
             code = _smallest_holding(drive, grid, codes, band, 0.0, delay, lsb, peak_time)
             start = int(codes[-1]) + 1
         lower = code if code is not None else min(c0, full - band)
@@ -220,7 +247,7 @@ def choose_thresholds(drive: Drive, grid: CornerGrid, peak_time: float = 0.0) ->
     off = t.prescaler * t.period_ticks / timer.clock
     start, code = c0, None
     while code is None and start <= full:
-        codes = np.arange(start, min(full, start + 255) + 1)
+        codes = np.arange(start, min(full, start + chunk - 1) + 1)
         code = _smallest_holding(drive, grid, codes, 0, off, delay, lsb, peak_time)
         start = int(codes[-1]) + 1
     peak = code if code is not None else c0
@@ -546,10 +573,12 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
     With split decay the hold's off segments take the slow path and the release the
     fast one, the bypass opening as ``freewheel.bypass_lead`` says (within the last
     on-time, or after the turn-off for a negative lead; a ``bypass_on`` column)."""
-    from ..model.waveform import peak_samples, release_waveform, split_release, split_waveform
+    from ..model.waveform import (one_point, peak_samples, release_waveform, split_release,
+                                  split_waveform)
 
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
-    v, r_on, r_off, v_off, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
+    v, r_on, r_off, v_off = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off))
+    ind = one_point(lp.inductance)   # H, or a saturating coil's curve (exact segments)
     a = v / r_on  # the current the on-time rises toward, A
     hyst = th.control == "hysteretic"
     upper, lower, d = th.upper_a, th.lower_a, th.delay_s

@@ -6,7 +6,18 @@ with duty ``d`` the mean current obeys
 duty drives the current through ``G(s) = V_g / (R_eff + s L)`` with
 ``V_g = V_on + V_off - (R_on - R_off) I`` and ``R_eff = d R_on + (1 - d) R_off``
 (state-space averaging: Middlebrook and Cuk, 1976; with equal resistances and no
-freewheel voltage it is the textbook ``V / (R + s L)``). The loop runs once a PWM
+freewheel voltage it is the textbook ``V / (R + s L)``).
+
+A saturating coil (a flux-linkage curve, :mod:`coildrive.model.flux`) obeys the same
+average with ``dpsi/dt = L_d(i) di/dt`` on the left. Linearised at the mean current
+``I`` -- ``psi(I + di) = psi(I) + L_d(I) di + O(di^2)`` -- the plant is
+``V_g / (R_eff + s L_d(I))``: the incremental inductance at the set-point, not the
+small-signal one at zero current. It holds while the loop's deviations keep
+``|L_d'(I)| di`` small against ``L_d(I)``: the PI moves the duty a few counts a period
+and the current a few ADC codes about the set-point (milliamperes against a curve that
+changes over tenths of an ampere), so the plant seen by the loop is that of the
+set-point; a large step (the fall from the peak onto the set-point) passes through other
+slopes, where the loop is saturated at its preload and not linear anyway. The loop runs once a PWM
 period ``T``: the duty is held for a period (zero-order hold) and the compare computed
 from the sample of period ``k`` takes effect in period ``k + 1`` (one period of delay).
 Discretised exactly with the hold, ``P(z) = b / (z - a)``, ``a = exp(-R_eff T / L)``,
@@ -27,6 +38,8 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+
+from ..model.flux import incremental_at
 
 #: Crossover at the fastest corner as a fraction of the PWM frequency (our choice: a
 #: twentieth keeps the loop's delay of 1.5 periods, ZOH and computation, to 27 degrees
@@ -70,11 +83,11 @@ def plant(lp, duty, current, frequency: float, counts: int, codes_per_amp: float
     vg = lp.v_on + lp.v_off - (lp.r_on - lp.r_off) * i
     r_eff = d * lp.r_on + (1.0 - d) * lp.r_off
     t = 1.0 / frequency
-    a = np.exp(-r_eff * t / lp.inductance)
+    ind = np.asarray(incremental_at(lp.inductance, i), float)   # H: L, or L_d(I) of a curve
+    a = np.exp(-r_eff * t / ind)
     b = vg / r_eff * (1.0 - a) * codes_per_amp / counts
     return Plant(a=np.atleast_1d(a), b=np.atleast_1d(b), vg=np.atleast_1d(vg),
-                 r_eff=np.atleast_1d(r_eff), inductance=np.atleast_1d(np.asarray(lp.inductance, float)),
-                 period=t)
+                 r_eff=np.atleast_1d(r_eff), inductance=np.atleast_1d(ind), period=t)
 
 
 def loop_gain(kp: float, ki: float, p: Plant, w) -> np.ndarray:

@@ -27,6 +27,14 @@ conversion, interrupt latency): the current runs on for that long past each thre
 so the ripple's top is ``A + (I_hi - A) e^(-delay/tau_on)`` and the bottom the decay
 from ``I_lo`` for ``delay`` (stopping at zero).
 
+With a saturating coil (``inductance`` a :class:`~coildrive.model.flux.FluxCoil`) the
+segments are the same time-to-current problems between the same thresholds, each
+solved exactly by the curve's quadrature ``t(i1 -> i2) = integral L_d(i) di / (v - R i)``
+(the functions of :mod:`coildrive.model.rl` hand over to :mod:`coildrive.model.flux`);
+the delay's run-on past a threshold and the fixed off time's decay are the curve's
+current after that time. Nothing else changes: the thresholds, not an inductance, end
+the segments, so the frequency, ripple, mean and heat follow exactly.
+
 Where the upper (or peak) threshold is at or above ``V / R_on`` the current never gets
 there: the switch stays on and the coil carries ``V / R_on`` (``regulated`` is False;
 the integrals are then those of that direct current over a 1 s window, ``frequency`` is
@@ -41,8 +49,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from . import flux
+from .flux import FluxCoil
 from .pwm import PwmSteadyState
-from .rl import decay_integrals, decay_time, rise_integrals, rise_time
+from .rl import decay_current, decay_integrals, decay_time, rise_current, rise_integrals, rise_time
 
 
 @dataclass(frozen=True)
@@ -91,8 +101,20 @@ def _finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, indu
     t_off = np.where(regulated, t_off, 0.0)
     conduction = np.where(regulated, conduction, 0.0)
     period = t_on + t_off
-    q_on, s_on = rise_integrals(t_on, bottom, v_on, r_on, inductance)
-    q_off, s_off = decay_integrals(conduction, top, r_off, v_off, inductance)
+    if isinstance(inductance, FluxCoil):
+        # the curve's segments between their known end currents (no current-after-time
+        # search): on from the bottom to the top, off from the top back to the bottom
+        (q_on, q_off), (s_on, s_off) = flux.integral(
+            inductance.with_scale(np.stack([inductance.scale] * 2)), np.stack([bottom, top]),
+            np.stack([top, bottom]), np.stack([v_on, -v_off]), np.stack([r_on, r_off]), (1, 2))
+        # unregulated: the coil carries V/R_on throughout (DC, not a segment)
+        q_on = np.where(regulated, q_on, a * t_on)
+        s_on = np.where(regulated, s_on, a * a * t_on)
+        q_off = np.where(regulated, q_off, 0.0)
+        s_off = np.where(regulated, s_off, 0.0)
+    else:
+        q_on, s_on = rise_integrals(t_on, bottom, v_on, r_on, inductance)
+        q_off, s_off = decay_integrals(conduction, top, r_off, v_off, inductance)
     mean = (q_on + q_off) / period
     rms = np.sqrt(np.maximum((s_on + s_off) / period, 0.0))
     frequency = np.where(regulated, 1.0 / period, 0.0)
@@ -103,6 +125,16 @@ def _finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, indu
         square_on=s_on, charge_off=q_off, square_off=s_off)
 
 
+def _broadcast(values, inductance):
+    """The arguments as float arrays broadcast together, with the inductance: a linear
+    coil's H joins the broadcast; a :class:`FluxCoil`'s per-point scale does."""
+    if isinstance(inductance, FluxCoil):
+        *out, scale = np.broadcast_arrays(*(np.asarray(x, float) for x in values),
+                                          np.asarray(inductance.scale, float))
+        return (*out, inductance.with_scale(scale))
+    return np.broadcast_arrays(*(np.asarray(x, float) for x in (*values, inductance)))
+
+
 def hysteretic_steady_state(i_lo, i_hi, v_on, r_on, r_off, v_off, inductance,
                             delay=0.0) -> CurrentModeSteadyState:
     """Hysteretic band ``i_lo``..``i_hi`` A (``0 <= i_lo < i_hi``), ``delay`` s per edge.
@@ -110,17 +142,16 @@ def hysteretic_steady_state(i_lo, i_hi, v_on, r_on, r_off, v_off, inductance,
     Loop arguments as :func:`coildrive.model.pwm.pwm_steady_state` (V, ohm, H; ``v_off``
     > 0 opposes the freewheeling current).
     """
-    i_lo, i_hi, v_on, r_on, r_off, v_off, inductance, delay = np.broadcast_arrays(
-        *(np.asarray(x, float) for x in (i_lo, i_hi, v_on, r_on, r_off, v_off, inductance, delay)))
+    i_lo, i_hi, v_on, r_on, r_off, v_off, delay, inductance = _broadcast(
+        (i_lo, i_hi, v_on, r_on, r_off, v_off, delay), inductance)
     a = v_on / r_on
     regulated = i_hi < a
     hi = np.where(regulated, i_hi, 0.5 * a)  # any level below A where unregulated: _finish replaces those
     lo = np.minimum(i_lo, hi)
-    top = a + (hi - a) * np.exp(-delay * r_on / inductance)
+    top = rise_current(delay, hi, v_on, r_on, inductance)          # run-on past I_hi
     down = decay_time(lo, top, r_off, v_off, inductance)           # top -> I_lo
     to_zero = decay_time(0.0, lo, r_off, v_off, inductance)        # I_lo -> 0
-    bottom = np.where(delay < to_zero,
-                      (lo + v_off / r_off) * np.exp(-delay * r_off / inductance) - v_off / r_off, 0.0)
+    bottom = np.where(delay < to_zero, decay_current(delay, lo, r_off, v_off, inductance), 0.0)
     bottom = np.maximum(bottom, 0.0)
     conduction = down + np.minimum(delay, to_zero)
     t_off = down + delay
@@ -132,15 +163,14 @@ def hysteretic_steady_state(i_lo, i_hi, v_on, r_on, r_off, v_off, inductance,
 def off_time_steady_state(i_peak, t_off, v_on, r_on, r_off, v_off, inductance,
                           delay=0.0) -> CurrentModeSteadyState:
     """Peak threshold ``i_peak`` A, fixed off time ``t_off`` s, ``delay`` s to turn off."""
-    i_peak, t_off, v_on, r_on, r_off, v_off, inductance, delay = np.broadcast_arrays(
-        *(np.asarray(x, float) for x in (i_peak, t_off, v_on, r_on, r_off, v_off, inductance, delay)))
+    i_peak, t_off, v_on, r_on, r_off, v_off, delay, inductance = _broadcast(
+        (i_peak, t_off, v_on, r_on, r_off, v_off, delay), inductance)
     a = v_on / r_on
-    b = v_off / r_off
     regulated = i_peak < a
     pk = np.where(regulated, i_peak, 0.5 * a)
-    top = a + (pk - a) * np.exp(-delay * r_on / inductance)
+    top = rise_current(delay, pk, v_on, r_on, inductance)          # run-on past I_pk
     to_zero = decay_time(0.0, top, r_off, v_off, inductance)
-    bottom = np.maximum((top + b) * np.exp(-t_off * r_off / inductance) - b, 0.0)
+    bottom = np.maximum(decay_current(t_off, top, r_off, v_off, inductance), 0.0)
     bottom = np.where(t_off < to_zero, bottom, 0.0)
     conduction = np.minimum(t_off, to_zero)
     t_on = rise_time(pk, np.minimum(bottom, pk), v_on, r_on, inductance) + delay

@@ -305,7 +305,8 @@ def release_waveform(drive: Drive, lp, supply: float, ts: list, cs: list, ons: l
     ``ts``/``cs``/``ons`` (s, A, 0/1), and make the :class:`Waveform` of them (switch-on at
     0 s, the hold from ``peak_time`` s)."""
     rel = lp if release_lp is None else release_lp
-    r_off, v_off, ind = (float(x) for x in (rel.r_off, rel.v_off, rel.inductance))
+    r_off, v_off = (float(x) for x in (rel.r_off, rel.v_off))
+    ind = one_point(rel.inductance)
     tz = float(decay_time(0.0, i_off, r_off, v_off, ind))
     td = np.linspace(0.0, tz, big + 1)[1:]
     ts.append(t_off + td)
