@@ -96,13 +96,56 @@ def test_a_boost_drivers_folder_is_refused_for_a_drive_without_one(firmware):
         build_firmware(fw, example_design("relay-12v"), cache=cache)
 
 
+@pytest.mark.compiler
+def test_the_coils_envelope_runs_without_a_fault_and_a_slow_coil_times_out(firmware):
+    # In the loop (in process): the hottest coil at its high R and L at the lowest supply
+    # (the longest peak: it must end at the threshold before BOOST_TIMEOUT_TICKS) and the
+    # coldest at its low R and L at the highest (the fastest rise: no over-current) run
+    # without a fault. The emulated boost is at its nominal voltage and capacitance; the
+    # boost's own tolerances are the design's worst corner. A coil of 3 x the inductance
+    # does not reach the threshold by the time-out (design/boost.firmware_peak: 0.4 ms and
+    # beyond): FAULT BOOST_TIMEOUT, BOOST_TIMEOUT_TICKS after the start (ON goes out at
+    # the next conversion, within a tick of it).
+    from coildrive.bench import FrameDecoder
+    from coildrive.bench.device import DeviceOptions
+    from coildrive.bench.firmware_device import FirmwareDevice
+    from coildrive.bench.messages import Event
+    from coildrive.codegen.host_build import build_firmware
+    from driver_harness import example_design
+
+    d = example_design("fuel-valve-boost-12v")
+    fw, cache = firmware
+    lib = build_firmware(fw, d, cache=cache)
+    c = d.drive.coil
+    temps = [x.coil_temp_c for x in d.corners]
+    runs = [(d.drive.supply.min, max(temps), 1 + c.resistance_tolerance, 1 + c.inductance_tolerance),
+            (d.drive.supply.max, min(temps), 1 - c.resistance_tolerance, 1 - c.inductance_tolerance),
+            (d.drive.supply.nominal, None, 1.0, 3.0)]
+    for supply, temp, rs, ls in runs:
+        dev = FirmwareDevice(d, lib, DeviceOptions(
+            supply=supply, coil_temp=temp, resistance_scale=rs, inductance_scale=ls, first_actuation=0.002,
+            noise_codes=1, seed=3, hold_time=0.005))
+        dec, events, t = FrameDecoder(), [], 0.0
+        while t < 0.1 and EventKind.OFF not in [e.kind for e in events]:
+            t += 0.005
+            events += [m for m in dec.feed(dev.read(t)) if isinstance(m, Event)]
+        kinds = [e.kind for e in events]
+        assert EventKind.OFF in kinds, (supply, temp, rs, ls, kinds)
+        if ls < 3.0:
+            assert EventKind.PEAK_END in kinds and EventKind.FAULT not in kinds, (supply, temp, rs, ls, kinds)
+            continue
+        faults = [e for e in events if e.kind == EventKind.FAULT]
+        assert [e.value for e in faults] == [int(FaultCode.BOOST_TIMEOUT)] and EventKind.PEAK_END not in kinds
+        on = next(e.index for e in events if e.kind == EventKind.ON)
+        took = (faults[0].index - on) / d.drive.board.adc.sample_rate * d.drive.board.tick.rate
+        assert d.boost.timeout_ticks - 1 <= took <= d.boost.timeout_ticks, took
+
+
 @pytest.mark.slow
-def test_firmware_in_the_loop_passes_check_and_a_slow_coil_times_out(tmp_path, firmware, monkeypatch):
+def test_firmware_in_the_loop_passes_check(tmp_path, firmware, monkeypatch):
     # firmware-driver -> emulate --firmware -> capture -> check, each a real subprocess: the
     # nominal device passes check (the peak ends at the threshold, as check predicts from
-    # the boost's closed form); a coil of 3 x the inductance does not reach the threshold
-    # in BOOST_TIMEOUT_TICKS (design/boost.firmware_peak: 0.4 ms and beyond), so the driver
-    # reports BOOST_TIMEOUT and check fails naming it
+    # the boost's closed form)
     from test_firmware_loop import capture
 
     fw, cache = firmware
@@ -112,20 +155,5 @@ def test_firmware_in_the_loop_passes_check_and_a_slow_coil_times_out(tmp_path, f
     r = run_cli("check", str(out), str(BOOST), "--json")
     items = {i["name"]: i for i in json.loads(r.stdout)["items"]}
     assert r.returncode == 0, {k: (i["status"], i["detail"]) for k, i in items.items()}
-    assert items["peak_duration"]["status"] == "pass"
-    out, cap = capture(tmp_path, fw, "slow", "--inductance-scale", "3", drive=BOOST, actuations="1")
-    faults = [e.value for e in cap.events if e.kind == EventKind.FAULT]
-    assert faults and set(faults) == {int(FaultCode.BOOST_TIMEOUT)}, faults
-    # at BOOST_TIMEOUT_TICKS from the start (the ON goes out at the next conversion)
-    from coildrive.config import load_drive
-    from coildrive.design import design
-
-    d = design(load_drive(BOOST))
-    on = next(e.index for e in cap.events if e.kind == EventKind.ON)
-    fault = next(e.index for e in cap.events if e.kind == EventKind.FAULT)
-    took = (fault - on) / d.drive.board.adc.sample_rate * d.drive.board.tick.rate
-    assert d.boost.timeout_ticks - 1 <= took <= d.boost.timeout_ticks, took
-    r = run_cli("check", str(out), str(BOOST), "--json")
-    items = {i["name"]: i for i in json.loads(r.stdout)["items"]}
-    assert r.returncode == 1 and items["faults"]["status"] == "FAIL", r.stdout
-    assert "BOOST_TIMEOUT" in items["faults"]["detail"], items["faults"]
+    assert {k for k, i in items.items() if i["status"] == "pass"} >= {
+        "pull_in_time", "peak_duration", "hold_mean", "release_time"}
