@@ -97,6 +97,34 @@ def test_a_boost_drivers_folder_is_refused_for_a_drive_without_one(firmware):
 
 
 @pytest.mark.compiler
+def test_driver_and_header_guard_each_other(tmp_path, firmware):
+    # gcc: the boost driver against a header without a boost, and a plain driver against
+    # the boost's header, each stop at its #error
+    import shutil
+    import subprocess
+
+    from coildrive.codegen.driver import render_driver
+    from driver_harness import STRICT, example_design
+
+    gcc = require_tool("gcc")
+    fw, _ = firmware
+    plain = render_driver(example_design("relay-12v"))
+    for driver_from, header_from, message in ((fw, plain, "this driver runs a boosted peak"),
+                                              (plain, fw, "coil_drive.h declares a boosted peak")):
+        folder = tmp_path / message.split()[-1]
+        folder.mkdir(exist_ok=True)
+        for name in ("coil_driver.h", "coil_driver.c", "coil_drive.h"):
+            source = header_from if name == "coil_drive.h" else driver_from
+            if isinstance(source, dict):
+                (folder / name).write_text(source[name])
+            else:
+                shutil.copy(source / name, folder / name)
+        r = subprocess.run([gcc, *STRICT, "-c", str(folder / "coil_driver.c"), "-o", str(folder / "d.o")],
+                           capture_output=True, text=True)
+        assert r.returncode != 0 and message in r.stderr, r.stderr
+
+
+@pytest.mark.compiler
 def test_the_coils_envelope_runs_without_a_fault_and_a_slow_coil_times_out(firmware):
     # In the loop (in process): the hottest coil at its high R and L at the lowest supply
     # (the longest peak: it must end at the threshold before BOOST_TIMEOUT_TICKS) and the
