@@ -130,8 +130,8 @@ def run_avr(folder: Path, d, script: list[tuple[str, int]], flags: tuple[str, ..
 def budget_script(d) -> list[tuple[str, int]]:
     """A scenario through every handler path: an actuation at the top of the duty table
     (its longest search), then over-current, open load, a supply fault in the hold,
-    shorted turns (where the design has the rise check) and, with an armature, a seat and
-    a stuck armature, each cleared through the lockout."""
+    shorted turns (where the design has the rise check), a boosted peak's time-out and,
+    with an armature, a seat and a stuck armature, each cleared through the lockout."""
     lock = d.release.lockout_ticks + 2
     peak = d.pull_in.peak_ticks
     from coildrive.codegen.driver import open_load_ticks
@@ -145,6 +145,9 @@ def budget_script(d) -> list[tuple[str, int]]:
     if d.rise_check is not None and d.rise_check.limit > 0:     # shorted turns: the rise in one conversion
         script += [("slew", d.rise_check.code), ("on", 0), ("run", 3), ("clear", 0), ("run", lock),
                    ("slew", healthy_slew(d))]
+    if d.boost is not None:     # a boosted peak that never reaches its threshold: the time-out
+        script += [("full", d.adc.pull_in_code), ("on", 0), ("run", peak + 2), ("clear", 0), ("run", lock),
+                   ("full", 2 * d.adc.pull_in_code)]
     if d.armature is not None:
         from coildrive.codegen.header import HeaderView
         hv = HeaderView(d)
@@ -162,7 +165,8 @@ def budget_script(d) -> list[tuple[str, int]]:
 def budget_shapes() -> list[tuple[str, object]]:
     shapes = [(name, example_design(name)) for name in
               ("demo-valve", "door-latch-24v", "locker-latch-12v", "pinch-valve-48v", "relay-12v",
-               "wash-valve-split-24v", "dosing-valve-closed-loop", "dosing-valve-bridge-24v")]
+               "wash-valve-split-24v", "dosing-valve-closed-loop", "dosing-valve-bridge-24v",
+               "fuel-valve-boost-12v")]
     for control in ("hysteretic", "off_time"):
         shapes.append((f"demo-valve {control}", example_design(
             "demo-valve", ('frequency = "25 kHz"', f'frequency = "25 kHz"\nmode = "current"\ncontrol = "{control}"'))))

@@ -28,7 +28,16 @@ settings built in). Until the first command the device actuates by itself.
 With an ``[armature]`` the current while the switch is held fully on from rest is the
 design's armature model (the pull-in with its dip); from the end of that peak on, the
 seated coil's RL model (the motional EMF of the armature opening in the release is left
-out). Current-mode holds are not run in the loop yet (the comparator would have to be
+out).
+
+With a boosted peak (``[supply] boost``) the driver's boost switch (its ``port_boost``
+hook) puts the boost capacitor on the coil: while it is on, the current is the series RLC
+closed form of :mod:`coildrive.model.boost` (the design's physics) from the current and
+the capacitor's voltage at its switch-on; from the conversion that turns it off, the
+main supply's RL rise. The capacitor starts charged to the boost's nominal voltage and
+between peaks recharges at ``boost_power`` (:func:`coildrive.model.boost.recharge_voltage`);
+the main supply's diode taking over below the bus is left out (the design's
+``boost_droop`` check keeps the capacitor above it). Current-mode holds are not run in the loop yet (the comparator would have to be
 stepped with the coil).
 """
 
@@ -40,6 +49,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ..model import boost as boost_model
 from ..model import eddy
 from ..model.circuit import loop
 from ..model.eddy import EddyCoil
@@ -154,7 +164,24 @@ class FirmwareDevice(LineOutput):
             from ..model.bridge import switch_mask
             on = design.topology.bridge.switches_on
             self._bridge = (switch_mask(on["hold_on"]), switch_mask(on["hold_decay"]), switch_mask(on["release"]))
+        #: a boosted peak: the boost at its nominal on this coil's peak loop, the capacitor's
+        #: voltage (V) and the time it was had (s)
+        self._boost = None
+        if design.boost is not None:
+            s, on = drive.supply, self._loops["hold"]
+            self._boost = boost_model.boost(s.boost, s.boost_capacitance, on.r_on + s.boost_resistance,
+                                            on.inductance)
+            self._boost_v, self._boost_t = float(s.boost), 0.0
         self._take_frames()
+
+    def boost_voltage(self, t: float) -> float:
+        """The boost capacitor's voltage (V) at device time ``t`` s, while its switch is off:
+        recharging at ``boost_power`` from where the last peak left it."""
+        s = self.drive.supply
+        if s.boost_capacitance <= 0:
+            return float(s.boost)
+        return float(boost_model.recharge_voltage(self._boost_v, max(t - self._boost_t, 0.0),
+                                                  s.boost_capacitance, s.boost_power, s.boost))
 
     def supply_step(self, at: float, supply: float) -> None:
         """From device time ``at`` s on, the bus is at ``supply`` V: the coil model and the
@@ -346,12 +373,27 @@ class FirmwareDevice(LineOutput):
                 and i0 < 1e-9:
             self._flight_t0 = t0             # the pull-in starts from rest
         flight = self._flight_t0
+        #: the boost switch on from the period's start: the capacitor at its voltage then
+        boosting = self._boost is not None and bool(enable) and bool(out >> 26 & 1)
+        boost = None
+        if boosting:
+            b = self._boost
+            boost = boost_model.Boost(np.asarray(self.boost_voltage(t0)), b.c, b.r, b.l)
+        #: the time the driver turns the boost off within this period, s
+        boost_cut: list[float] = []
 
         def on_current(x):
             if flight is not None:           # the armature model while the switch stays on
                 return np.interp(np.asarray(x, float) - flight, *self._flight)
             on = self._loops["hold"]
-            return rise_current(np.asarray(x, float) - t0, i0, on.v_on, on.r_on, on.inductance)
+            x = np.asarray(x, float)
+            if boost is None:
+                return rise_current(x - t0, i0, on.v_on, on.r_on, on.inductance)
+            if not boost_cut:
+                return boost_model.state(x - t0, boost, i0)[0]
+            i_cut = boost_model.state(boost_cut[0] - t0, boost, i0)[0]
+            return np.where(x <= boost_cut[0], boost_model.state(np.minimum(x, boost_cut[0]) - t0, boost, i0)[0],
+                            rise_current(np.maximum(x - boost_cut[0], 0.0), i_cut, on.v_on, on.r_on, on.inductance))
 
         def terminal_current(x, i_m):
             """What the sense resistor carries: the coil's current, or with an eddy
@@ -402,11 +444,32 @@ class FirmwareDevice(LineOutput):
             on_end = s                      # the switch output is disabled at once
         if self._bridge is not None and bypass and not new >> 24 & 1:
             cut.append(s)                   # the bridge opens all four: fast decay from here
+        if boosting and not (new >> 26 & 1 and new >> 24 & 1):
+            boost_cut.append(s)             # the boost switch off now: the main supply from here
+        late = None
+        if self._boost is not None and not enable and new >> 26 & 1 and new >> 24 & 1:
+            # the peak's start: the boost and the switch go on at once in this conversion
+            # (its ON event's moment), the capacitor from where its recharge has it
+            b = self._boost
+            late = (s, float(current(s)), boost_model.Boost(np.asarray(self.boost_voltage(s)), b.c, b.r, b.l))
+            off_current = current
+
+            def current(x):                 # noqa: F811 -- this period's current from here on
+                x = np.asarray(x, float)
+                return np.where(x < s, off_current(x),
+                                boost_model.state(np.maximum(x - s, 0.0), late[2], late[1])[0])
         self._outputs = new
         self._run_samples(s, t0 + T, sensed)
         for tt in [x for x in ticks if x >= s]:
             self._do_tick(tt)
         self._i = float(current(t0 + T))
+        if boosting:                        # where the capacitor stands when its switch is next off
+            end = boost_cut[0] if boost_cut else t0 + T
+            self._boost_v = float(boost_model.state(min(end, on_end) - t0, boost, i0)[1])
+            self._boost_t = end
+        elif late is not None:
+            self._boost_v = float(boost_model.state(t0 + T - late[0], late[2], late[1])[1])
+            self._boost_t = t0 + T
         if self.trace is not None:      # the period's mean: midpoint rule, 64 points
             x = t0 + (np.arange(64) + 0.5) * (T / 64)
             self.trace.append((t0, float(np.mean(current(x))), self._state))

@@ -60,6 +60,9 @@ class FaultCode(IntEnum):
     SHORTED_TURNS = 6
     """The current rose faster after switch-on than any healthy coil of the design's
     envelope allows at that supply (shorted turns: too little inductance)."""
+    BOOST_TIMEOUT = 7
+    """A boosted peak did not reach its current threshold within its time-out (the boost
+    capacitor not charged, a coil of too much resistance or inductance)."""
 
 
 class Opcode(IntEnum):

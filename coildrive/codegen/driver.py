@@ -20,7 +20,7 @@ from ..bench.messages import EventKind, FaultCode
 from ..design.result import Design
 from ..errors import InputError
 from ..resources import data_dir
-from .header import Constant, c_uint_type, check_prefix, generate_header
+from .header import Constant, boost_min_interval_ticks, c_uint_type, check_prefix, generate_header
 
 #: Conversions after each switch-on whose current is not tested for over-current: the
 #: first one can carry the switching edge (diode reverse recovery, the sense filter
@@ -100,10 +100,15 @@ class DriverView:
                              f"{d.drive.hold.fast_fraction:g}: this driver's bridge holds in slow "
                              "decay only (its hold duty would be wrong for mixed decay), expected "
                              "fast_fraction left out for firmware-driver and emulate --firmware")
-        if d.drive.supply.boosted:
+        #: a boosted peak: the boost switch (port_boost) on in the peak until the ADC
+        #: handler reads BOOST_THRESHOLD_CODE; BOOST_TIMEOUT_TICKS without it is a fault;
+        #: the next switch-on waits BOOST_MIN_INTERVAL_TICKS (when the design gives it)
+        self.boost = d.boost is not None
+        self.boost_interval = self.boost and d.boost.recharge_time_s is not None
+        if self.boost and d.boost.timeout_ticks is None:
             raise InputError(d.drive.source or d.drive.name, "supply.boost",
-                             "the reference driver runs the peak for its ticks; a boosted peak's boost "
-                             "switch and current threshold are not in it yet (the header has their constants)")
+                             "the boost never reaches the threshold at the worst corner (see the "
+                             "boost_threshold check), expected a boost that does for firmware-driver")
         if self.regulation not in ("fixed", "supply_table", "current", "closed_loop"):
             raise InputError(d.drive.source or d.drive.name, "hold.regulation",
                              f"{self.regulation!r}: this driver runs the fixed, supply-table, "
@@ -169,7 +174,8 @@ class DriverView:
                 "seat: taken, and STUCK waited for, this long past SEAT_LATEST_TICKS (the climb "
                 + (f"{sc.climb_s * 1e3:.3g} ms" if sc is not None and math.isfinite(sc.climb_s) else "not designed")
                 + ", +1 tick)"))
-        longest = max(d.pull_in.peak_ticks, d.release.lockout_ticks, open_load_ticks(d), 255)
+        longest = max(d.pull_in.peak_ticks, d.release.lockout_ticks, open_load_ticks(d), 255,
+                      boost_min_interval_ticks(d))
         self.tick_type = c_uint_type(max(longest, 0x100))
         self.event_kinds = [(k.name, int(k)) for k in DRIVER_EVENTS]
         self.fault_codes = [(f.name, int(f)) for f in FaultCode]
@@ -211,9 +217,11 @@ def render_driver(design: Design, prefix: str = "coil") -> dict[str, str]:
 #: figure exceeds its bound or falls 10 % below it. ``adc_isr_closed_loop`` is the ADC
 #: handler of a closed-loop hold (the PI step's 32-bit multiplies through the libgcc
 #: routines of an 8-bit core), over the closed-loop example's script; ``adc_isr_bridge`` is
-#: a full bridge's (the phase masks set at each switch-on), over the bridge example's.
+#: a full bridge's (the phase masks set at each switch-on), over the bridge example's;
+#: ``adc_isr_boost`` a boosted peak's (the threshold, the boost switch and the ON and
+#: PEAK_END events sent from the handler), over the boost example's with its time-out.
 HANDLER_CYCLES = {"adc_isr": 340, "pwm_isr": 11, "tick": 692, "threshold_isr": 137,
-                  "adc_isr_closed_loop": 602, "adc_isr_bridge": 346}
+                  "adc_isr_closed_loop": 602, "adc_isr_bridge": 346, "adc_isr_boost": 404}
 #: Worst-case cycle bounds of each handler on Cortex-M cores, over the same drive shapes
 #: and script (tests/test_driver_qemu.py): arm-none-eabi-gcc 12.2 -Os builds run under
 #: QEMU 7.2 (mps2-an385: Cortex-M3, and the ARMv6-M code of the M0+; mps2-an386:
@@ -225,19 +233,19 @@ HANDLER_CYCLES = {"adc_isr": 340, "pwm_isr": 11, "tick": 692, "threshold_isr": 1
 #: figure exceeds its bound or all fall 10 % below it.
 CORTEX_CYCLES = {
     "cortex-m0plus": {"adc_isr": 324, "pwm_isr": 13, "tick": 525, "threshold_isr": 121,
-                      "adc_isr_closed_loop": 310, "adc_isr_bridge": 324},
+                      "adc_isr_closed_loop": 310, "adc_isr_bridge": 324, "adc_isr_boost": 362},
     "cortex-m3": {"adc_isr": 305, "pwm_isr": 8, "tick": 509, "threshold_isr": 102,
-                  "adc_isr_closed_loop": 308, "adc_isr_bridge": 306},
+                  "adc_isr_closed_loop": 308, "adc_isr_bridge": 306, "adc_isr_boost": 327},
     "cortex-m4": {"adc_isr": 305, "pwm_isr": 8, "tick": 509, "threshold_isr": 102,
-                  "adc_isr_closed_loop": 308, "adc_isr_bridge": 306},
+                  "adc_isr_closed_loop": 308, "adc_isr_bridge": 306, "adc_isr_boost": 327},
 }
 CORTEX_INSTRUCTIONS = {
     "cortex-m0plus": {"adc_isr": 176, "pwm_isr": 4, "tick": 373, "threshold_isr": 63,
-                      "adc_isr_closed_loop": 165, "adc_isr_bridge": 176},
+                      "adc_isr_closed_loop": 165, "adc_isr_bridge": 176, "adc_isr_boost": 194},
     "cortex-m3": {"adc_isr": 147, "pwm_isr": 2, "tick": 305, "threshold_isr": 53,
-                  "adc_isr_closed_loop": 148, "adc_isr_bridge": 148},
+                  "adc_isr_closed_loop": 148, "adc_isr_bridge": 148, "adc_isr_boost": 159},
     "cortex-m4": {"adc_isr": 147, "pwm_isr": 2, "tick": 305, "threshold_isr": 53,
-                  "adc_isr_closed_loop": 148, "adc_isr_bridge": 148},
+                  "adc_isr_closed_loop": 148, "adc_isr_bridge": 148, "adc_isr_boost": 159},
 }
 #: How each core's figures were had, for the printed timing line.
 _CYCLE_SOURCES = {
@@ -260,11 +268,14 @@ WARN_SHARE = 0.5
 
 def budget_key(design: Design, handler: str) -> str:
     """The :data:`HANDLER_CYCLES` entry of ``handler`` for ``design``: a closed-loop hold's
-    ADC handler runs the PI step (32-bit multiplies: slow on an 8-bit core) and has its own."""
+    ADC handler runs the PI step (32-bit multiplies: slow on an 8-bit core) and has its own,
+    as have a full bridge's and a boosted peak's."""
     if handler == "adc_isr" and regulation_of(design) == "closed_loop":
         return "adc_isr_closed_loop"
     if handler == "adc_isr" and design.topology is not None and design.topology.bridge is not None:
         return "adc_isr_bridge"
+    if handler == "adc_isr" and design.boost is not None:
+        return "adc_isr_boost"
     return handler
 
 

@@ -231,6 +231,14 @@ def _bridge_constants(d: Design, m: str) -> tuple[list[Constant], list[Constant]
     return bits, phases
 
 
+def boost_min_interval_ticks(d: Design) -> int:
+    """BOOST_MIN_INTERVAL_TICKS: the shortest switch-on to switch-on of a boosted peak in
+    whole ticks, rounded up (0 without a boost's recharge time)."""
+    if d.boost is None or d.boost.min_interval_s is None:
+        return 0
+    return math.ceil(d.boost.min_interval_s * d.drive.board.tick.rate - 1e-9)
+
+
 def _boost_constants(d: Design, m: str) -> list[Constant]:
     """With a boosted peak: its threshold code, time-out and the boost's recharge, in ticks."""
     b = d.boost
@@ -250,7 +258,7 @@ def _boost_constants(d: Design, m: str) -> list[Constant]:
             Constant(f"{m}_BOOST_RECHARGE_TICKS", math.ceil(b.recharge_time_s * rate - 1e-9),
                      f"the boost takes {b.recharge_time_s * 1e3:.4g} ms to put back "
                      f"{b.energy_j * 1e3:.4g} mJ at {b.power_w:.4g} W"),
-            Constant(f"{m}_BOOST_MIN_INTERVAL_TICKS", math.ceil(b.min_interval_s * rate - 1e-9),
+            Constant(f"{m}_BOOST_MIN_INTERVAL_TICKS", boost_min_interval_ticks(d),
                      f"shortest switch-on to switch-on ({b.min_interval_s * 1e3:.4g} ms)"),
         ]
     return out

@@ -89,6 +89,11 @@ def build_firmware(folder: Path, design: Design, cache: Path | None = None) -> P
     if not own_stream:
         generated.update(render_stream_encoder(view.lower, blocks=STREAM_BLOCKS, board=design.drive.board))
     sources = {p.name: p.read_text() for p in sorted(Path(folder).glob(f"{prefix}_*.[ch]"))}
+    boosted = f"#define {view.macro}_BOOST_PEAK " in sources.get(f"{prefix}_drive.h", "")
+    if boosted != view.boost:   # the coil model switches the boost on the driver's word
+        raise InputError(str(folder), "", "has a driver generated for a drive " + ("with" if boosted else "without")
+                         + " supply.boost, this drive has " + ("none" if boosted else "one")
+                         + ": run firmware-driver for this drive")
     compiler = find_compiler()
     flags = ["-std=c99", "-O2", "-shared", "-fPIC", f"-D{view.macro}_STREAM_SINGLE_CONTEXT"]
     if view.armature:

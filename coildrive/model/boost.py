@@ -67,12 +67,13 @@ def boost(v_b, c, r, l) -> Boost:
     return Boost(*np.broadcast_arrays(*(np.asarray(x, float) for x in (v_b, c, r, l))))
 
 
-def state(t, b: Boost) -> tuple[np.ndarray, np.ndarray]:
-    """``(coil current A, boost voltage V)`` ``t`` s after switch-on."""
+def state(t, b: Boost, i0=0.0) -> tuple[np.ndarray, np.ndarray]:
+    """``(coil current A, boost voltage V)`` ``t`` s after switch-on, from the current ``i0``
+    A then (0: from rest) and the boost at ``b.v_b`` (``x'(0) = i0`` in the closed form)."""
     c = b._c()
-    x, i = rlc.state(t, -c * b.v_b, 0.0, b.r, b.l, c)
+    x, i = rlc.state(t, -c * b.v_b, i0, b.r, b.l, c)
     ideal = b.ideal
-    i = np.where(ideal, rise_current(t, 0.0, b.v_b, b.r, b.l), i)
+    i = np.where(ideal, rise_current(t, i0, b.v_b, b.r, b.l), i)
     v = np.where(ideal, b.v_b, -x / c)
     return i, v
 
@@ -130,6 +131,12 @@ def voltage_trace(t, peak_end: float, b: Boost, power: float) -> np.ndarray:
         return np.full(t.shape, float(b.v_b))
     v_during = state(np.minimum(t, peak_end), b)[1]
     v_end = float(state(peak_end, b)[1])
-    c = float(b.c)
-    after = np.sqrt(v_end**2 + 2.0 * power * np.maximum(t - peak_end, 0.0) / c)
-    return np.where(t <= peak_end, v_during, np.minimum(after, float(b.v_b)))
+    after = recharge_voltage(v_end, np.maximum(t - peak_end, 0.0), float(b.c), power, float(b.v_b))
+    return np.where(t <= peak_end, v_during, after)
+
+
+def recharge_voltage(v_end, dt, c, power, v_full) -> np.ndarray:
+    """The capacitor's voltage (V) ``dt`` s into its recharge from ``v_end`` V at a constant
+    ``power`` W into ``c`` F: ``sqrt(v_end^2 + 2 P dt / C)``, up to ``v_full`` V (the
+    converter's regulation); ``v_end`` while ``power`` is 0."""
+    return np.minimum(np.sqrt(np.asarray(v_end, float)**2 + 2.0 * power * np.asarray(dt, float) / c), v_full)

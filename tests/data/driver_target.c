@@ -6,6 +6,7 @@
  *   p <tick> <conversion> <counts>         the PWM compare hook
  *   b <tick> <conversion> <closed>         the bypass hook
  *   g <tick> <conversion> <masks>          a full bridge's hook: on-time mask + 16 x off-time mask
+ *   k <tick> <conversion> <on>             a boosted peak's boost-switch hook
  *   x <state> <fault>                      after each scenario step
  * and the worst cycle counts of the handlers (AVR: Timer1 at clk/1; host: 0):
  *   c <name> <cycles>
@@ -128,6 +129,9 @@ void coil_port_pwm_compare(coil_compare_t counts) { compare = counts; log_add('p
 void coil_port_bypass(uint8_t closed) { bypass = closed; log_add('b', closed); }
 #ifdef COIL_BRIDGE_PEAK_SWITCHES
 void coil_port_bridge(uint8_t on_time, uint8_t off_time) { log_add('g', (int32_t)(on_time + 16u * off_time)); }
+#endif
+#ifdef COIL_BOOST_PEAK
+void coil_port_boost(uint8_t on) { log_add('k', on); }
 #endif
 void coil_port_adc_start(void) { }
 coil_adc_t coil_port_read_current(void) { return (coil_adc_t)current; }
