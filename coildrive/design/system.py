@@ -81,15 +81,33 @@ PIECE_S = 10e-6
 TAIL_SPLITS = 6
 
 
-def _branch_draw(t, b: dict):
-    """Upper bound (A) of one branch's draw ``t`` s after switch-on (arrays broadcast)."""
+def _branch_parts(t, b: dict):
+    """``(rise, tail)`` (A) of one branch ``t`` s after switch-on, each as if it held there."""
     t = np.asarray(t, float)
     rise = b["supply_v"] / b["resistance_ohm"] * -np.expm1(
         -np.clip(t, 0.0, None) * b["resistance_ohm"] / b["inductance_h"])
     age = np.clip(t - b["peak_s"] - b["pwm_period_s"], 0.0, None)
     tail = b["hold_top_a"] + np.max([e * np.exp(-age * b["slow_resistance_ohm"] / l)
                                      for e, l in zip(b["excess_a"], b["tail_inductance_h"])], axis=0)
+    return rise, tail
+
+
+def _branch_draw(t, b: dict):
+    """Upper bound (A) of one branch's draw ``t`` s after switch-on (arrays broadcast)."""
+    t = np.asarray(t, float)
+    rise, tail = _branch_parts(t, b)
     return np.where(t < 0, 0.0, np.where(t <= b["peak_s"], rise, tail))
+
+
+def _piece_draw(u, w, b: dict):
+    """Upper bound (A) of one branch's draw over the pieces ``[u, w]`` (s after its
+    switch-on) that no switching moment cuts: 0 before the switch-on, the rise at ``w``
+    within the peak, else the tail at ``u`` (its value just after the peak's end where
+    ``u`` is that end: the tail starts above the rise)."""
+    mid = 0.5 * (u + w)
+    rise = _branch_parts(w, b)[0]
+    tail = _branch_parts(u, b)[1]
+    return np.where(mid < 0, 0.0, np.where(mid < b["peak_s"], rise, tail))
 
 
 def draw_bound(t, params: dict) -> np.ndarray:
@@ -107,10 +125,16 @@ def draw_bound(t, params: dict) -> np.ndarray:
 
 def _tables(d):
     """``(peak entries, duty lookup)`` of what the firmware runs: ``[(code or None, ticks)]``
-    and a function of supply-sense codes giving the hold's duty."""
+    and a function of supply-sense codes giving the hold's duty (the highest: a
+    closed-loop hold's output clamp)."""
     pt = d.peak_table
     peaks = ([(c, t) for c, t in zip(pt.adc_codes, pt.peak_ticks)] if pt is not None
              else [(None, d.pull_in.peak_ticks)])
+    if d.hold.regulation == "closed_loop":
+        # the loop's output is clamped at max_compare: the most duty it can command, at
+        # any moment after the peak (docs/design-method.md, "Several channels")
+        top = d.hold.closed_loop.max_compare / d.timer.period_ticks
+        return peaks, [], lambda code: np.full(np.shape(code), top)
     dt = d.duty_table
     if d.hold.regulation == "supply_table" and dt.adc_codes:
         comp = np.asarray(dt.compare_ticks, float) / d.timer.period_ticks
@@ -299,11 +323,9 @@ def total_bound(params: list[dict], offsets, cells=None) -> tuple[float, float]:
     k_in = np.arange(len(start)) - np.repeat(np.cumsum(count) - count, count)
     u = start + k_in * step
     w = u + step
-    mid = 0.5 * (u + w)
     rows = []
     for o, p in zip(offsets, params):
-        rows.append(np.array([np.where((mid > o) & (mid < o + b["peak_s"]), _branch_draw(w - o, b),
-                                       _branch_draw(u - o, b)) for b in p["branches"]]))
+        rows.append(np.array([_piece_draw(u - o, w - o, b) for b in p["branches"]]))
     best, when = -1.0, 0.0
     for _, _, cell in cells:
         total = sum(r[idx].max(axis=0) for r, idx in zip(rows, cell))
@@ -566,8 +588,8 @@ def rail_curves(result: SystemResult, points: int = 6000) -> list[dict]:
 
 def _refuse(system: System, ch) -> None:
     """What the rail's current bound is made for: a linear coil without a moving armature,
-    a voltage-mode (fixed or supply table) or current-mode hold and one switch. Anything
-    else is refused in one line."""
+    a voltage-mode (fixed, supply-table or closed-loop) or current-mode hold and one
+    switch. Anything else is refused in one line."""
     d = ch.drive
     why = None
     if d.coil.flux_current:
@@ -576,8 +598,6 @@ def _refuse(system: System, ch) -> None:
         key, why = "armature", "a moving armature"
     elif d.hold.mode == "latch":
         key, why = "hold.mode", "a latching coil"
-    elif d.hold.regulation == "closed_loop":
-        key, why = "hold.regulation", "a closed-loop hold"
     elif d.switch.topology == "full_bridge":
         key, why = "switch.topology", "a full bridge"
     elif d.coil.eddy_resistance:
@@ -587,7 +607,7 @@ def _refuse(system: System, ch) -> None:
     if why is not None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
                          "in a system yet; expected a linear coil, no [armature], one switch and a "
-                         "voltage-mode fixed or supply-table hold, or a current-mode hold")
+                         "voltage-mode fixed, supply-table or closed-loop hold, or a current-mode hold")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:
