@@ -81,15 +81,33 @@ PIECE_S = 10e-6
 TAIL_SPLITS = 6
 
 
-def _branch_draw(t, b: dict):
-    """Upper bound (A) of one branch's draw ``t`` s after switch-on (arrays broadcast)."""
+def _branch_parts(t, b: dict):
+    """``(rise, tail)`` (A) of one branch ``t`` s after switch-on, each as if it held there."""
     t = np.asarray(t, float)
     rise = b["supply_v"] / b["resistance_ohm"] * -np.expm1(
         -np.clip(t, 0.0, None) * b["resistance_ohm"] / b["inductance_h"])
     age = np.clip(t - b["peak_s"] - b["pwm_period_s"], 0.0, None)
     tail = b["hold_top_a"] + np.max([e * np.exp(-age * b["slow_resistance_ohm"] / l)
                                      for e, l in zip(b["excess_a"], b["tail_inductance_h"])], axis=0)
+    return rise, tail
+
+
+def _branch_draw(t, b: dict):
+    """Upper bound (A) of one branch's draw ``t`` s after switch-on (arrays broadcast)."""
+    t = np.asarray(t, float)
+    rise, tail = _branch_parts(t, b)
     return np.where(t < 0, 0.0, np.where(t <= b["peak_s"], rise, tail))
+
+
+def _piece_draw(u, w, b: dict):
+    """Upper bound (A) of one branch's draw over the pieces ``[u, w]`` (s after its
+    switch-on) that no switching moment cuts: 0 before the switch-on, the rise at ``w``
+    within the peak, else the tail at ``u`` (its value just after the peak's end where
+    ``u`` is that end: the tail starts above the rise)."""
+    mid = 0.5 * (u + w)
+    rise = _branch_parts(w, b)[0]
+    tail = _branch_parts(u, b)[1]
+    return np.where(mid < 0, 0.0, np.where(mid < b["peak_s"], rise, tail))
 
 
 def draw_bound(t, params: dict) -> np.ndarray:
@@ -107,10 +125,16 @@ def draw_bound(t, params: dict) -> np.ndarray:
 
 def _tables(d):
     """``(peak entries, duty lookup)`` of what the firmware runs: ``[(code or None, ticks)]``
-    and a function of supply-sense codes giving the hold's duty."""
+    and a function of supply-sense codes giving the hold's duty (the highest: a
+    closed-loop hold's output clamp)."""
     pt = d.peak_table
     peaks = ([(c, t) for c, t in zip(pt.adc_codes, pt.peak_ticks)] if pt is not None
              else [(None, d.pull_in.peak_ticks)])
+    if d.hold.regulation == "closed_loop":
+        # the loop's output is clamped at max_compare: the most duty it can command, at
+        # any moment after the peak (docs/design-method.md, "Several channels")
+        top = d.hold.closed_loop.max_compare / d.timer.period_ticks
+        return peaks, [], lambda code: np.full(np.shape(code), top)
     dt = d.duty_table
     if d.hold.regulation == "supply_table" and dt.adc_codes:
         comp = np.asarray(dt.compare_ticks, float) / d.timer.period_ticks
@@ -148,6 +172,7 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
     t_cold = drive.ambient.min
     t_hot = max(c.coil_temp_c for c in d.corners)
     peaks, duty_codes, duty_of = _tables(d)
+    current = _current_mode_hold(d) if d.hold.mode == "current" else None
 
     def low_code(v):         # the lowest code the firmware may read at source voltage v (just below it)
         if b.supply_sense is None:
@@ -172,14 +197,19 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
         hi = v_max if e == len(peaks) - 1 else min(v_max, top_of(peaks[e + 1][0]))
         if lo > v_max or hi < v_min or hi < lo:
             continue
-        cands = [hi] + [top_of(c) for c in duty_codes[1:] if lo < top_of(c) < hi] if duty_codes else [hi]
-        cold = loops(np.array(cands)[:, None], t_cold)
-        duty_hi = np.asarray(duty_of(low_code(np.array(cands))), float)[:, None]
-        orbit = pwm.pwm_steady_state(duty_hi, f, cold.v_on, cold.r_on, cold.r_off, cold.v_off, cold.inductance)
-        hot = loops(lo, t_hot)
-        duty_lo = float(duty_of(high_code(np.array([hi])))[0])
-        bottom = float(np.min(pwm.pwm_steady_state(duty_lo, f, hot.v_on, hot.r_on, hot.r_off, hot.v_off,
-                                                   hot.inductance).i_min))
+        if current is not None:
+            hold_top, bottom, settle_s = current(loops(hi, t_cold))
+        else:
+            cands = [hi] + [top_of(c) for c in duty_codes[1:] if lo < top_of(c) < hi] if duty_codes else [hi]
+            cold = loops(np.array(cands)[:, None], t_cold)
+            duty_hi = np.asarray(duty_of(low_code(np.array(cands))), float)[:, None]
+            hold_top = float(np.max(pwm.pwm_steady_state(duty_hi, f, cold.v_on, cold.r_on, cold.r_off,
+                                                         cold.v_off, cold.inductance).i_max))
+            hot = loops(lo, t_hot)
+            duty_lo = float(duty_of(high_code(np.array([hi])))[0])
+            bottom = float(np.min(pwm.pwm_steady_state(duty_lo, f, hot.v_on, hot.r_on, hot.r_off, hot.v_off,
+                                                       hot.inductance).i_min))
+            settle_s = 1.0 / f
         top_cold = loops(hi, t_cold)
         r_on = float(np.min(top_cold.r_on))
         l_min, l_max = float(np.min(top_cold.inductance)), float(np.max(top_cold.inductance))
@@ -190,11 +220,45 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
         ends = np.linspace(l_min, l_max, TAIL_SPLITS + 1) if l_max > l_min else np.array([l_min, l_min])
         i_pe = hi / r_on * -np.expm1(-tp * r_on / ends[:-1])
         branches.append({"supply_v": hi, "supply_low_v": lo, "resistance_ohm": r_on, "inductance_h": l_min,
-                         "peak_s": tp, "peak_end_a": float(i_pe[0]), "hold_top_a": float(np.max(orbit.i_max)),
+                         "peak_s": tp, "peak_end_a": float(i_pe[0]), "hold_top_a": hold_top,
                          "excess_a": [max(0.0, float(x) - bottom) for x in i_pe],
                          "tail_inductance_h": [float(x) for x in ends[1:]],
-                         "slow_resistance_ohm": r_slow, "pwm_period_s": 1.0 / f})
+                         "slow_resistance_ohm": r_slow, "pwm_period_s": settle_s})
     return {"reading_droop_v": reading_droop_v, **_summary(branches)}
+
+
+def _current_mode_hold(d):
+    """For a current-mode hold, a function of the cold loops at a branch's top supply giving
+    ``(hold top A, bottom A, settle s)`` for :func:`channel_bound_params`.
+
+    The comparator trips where the reading reaches the threshold code: the true current is
+    then the code's current over the reading factor (the sense resistor's and amplifier's
+    tolerances, :func:`~coildrive.design.envelope.reading_factors`), so between ``I_min' =
+    I_thr / high`` and ``I_hi' = I_thr / low`` (``I_thr`` the upper or peak threshold); the switch follows ``delay`` s later. Held
+    on from ``i0`` for the delay, the current is ``A (1 - e^-a) + i0 e^-a`` (``A = V/R_on``,
+    ``a = delay R_on / L``) ``= T(I) + (i0 - I) e^-a`` for any ``I``, with ``T(I) = A - (A -
+    I) e^-a`` the top a crossing of ``I`` leads to (``A`` where ``A <= I``: the threshold
+    is out of reach). So the hold's top is at most ``min(A, A - (A - I_hi') e^-a)`` at the
+    coldest loop, highest over the tolerance corners; after the peak a current ``i0 >=
+    I_min'`` is at most that top plus ``(i0 - I_lo')`` falling at least as fast as ``exp(-R
+    t/L)`` (``R = min(R_on, R_off)``; taking ``I = I_min'`` above) once the first
+    switching cycle after the peak is over:
+    hysteretic, the delay (then off, a monotone decay down to the lower threshold);
+    fixed off-time, the delay plus the off time (each further cycle the same again, the
+    excess over the threshold multiplied by ``exp(-(delay R_on + t_off R_off)/L)``). The
+    bottom of :func:`channel_bound_params`'s excess is therefore ``I_lo'``
+    (docs/design-method.md, "Several channels")."""
+    th = d.hold.thresholds
+    low, high = envelope.reading_factors(d.drive)
+    hyst = th.control == "hysteretic"
+    settle = th.delay_s + (0.0 if hyst else th.off_time_s)
+
+    def hold(cold):
+        a_top = cold.v_on / cold.r_on
+        i_hi = th.upper_a / low
+        top = np.minimum(a_top, a_top - (a_top - i_hi) * np.exp(-th.delay_s * cold.r_on / cold.inductance))
+        return float(np.max(top)), float(th.upper_a / high), settle
+    return hold
 
 
 def _summary(branches: list[dict]) -> dict:
@@ -259,11 +323,9 @@ def total_bound(params: list[dict], offsets, cells=None) -> tuple[float, float]:
     k_in = np.arange(len(start)) - np.repeat(np.cumsum(count) - count, count)
     u = start + k_in * step
     w = u + step
-    mid = 0.5 * (u + w)
     rows = []
     for o, p in zip(offsets, params):
-        rows.append(np.array([np.where((mid > o) & (mid < o + b["peak_s"]), _branch_draw(w - o, b),
-                                       _branch_draw(u - o, b)) for b in p["branches"]]))
+        rows.append(np.array([_piece_draw(u - o, w - o, b) for b in p["branches"]]))
     best, when = -1.0, 0.0
     for _, _, cell in cells:
         total = sum(r[idx].max(axis=0) for r, idx in zip(rows, cell))
@@ -351,7 +413,11 @@ def find_stagger(params: list[dict], fixed: list[float | None], limit: float, ti
 # --------------------------------------------------------------------------- the system
 def system_drives(system: System) -> list:
     """Each channel's drive with its shared timer fixed (the channels' order); a one-line
-    :class:`InputError` naming the channel a shared timer cannot serve."""
+    :class:`InputError` naming the channel a shared timer cannot serve. A hysteretic
+    current-mode hold switches on its thresholds, not on the timer; its fixed-duty fallback
+    (what the firmware starts the hold with or falls back to, :mod:`.hold_current`) runs on
+    the timer's period at ``hold.frequency`` and takes part as a voltage-mode hold does. A
+    fixed off-time is the timer's own period, so it cannot share one."""
     board_ch = system.channels[0].drive.board.channels
     timer = system.channels[0].drive.board.timer
     channels = list(system.channels)
@@ -362,6 +428,13 @@ def system_drives(system: System) -> list:
         if group in seen or len(members) < 2:
             continue
         seen.add(group)
+        for c in members:
+            if c.drive.hold.mode == "current" and c.drive.hold.control == "off_time":
+                raise InputError(c.drive.source, "hold.control",
+                                 f"channel {c.name!r} of {system.source}: a fixed off-time is made by "
+                                 "its timer's own prescaler and period, which a timer shared by channels "
+                                 f"{list(group)} cannot give; expected the channel alone on a timer "
+                                 "([channels] timers) or control = \"hysteretic\"")
         windows = [(c.name, c.drive.hold.frequency * (1 - c.drive.hold.frequency_tolerance),
                     c.drive.hold.frequency * (1 + c.drive.hold.frequency_tolerance),
                     c.drive.hold.frequency) for c in members]
@@ -515,18 +588,16 @@ def rail_curves(result: SystemResult, points: int = 6000) -> list[dict]:
 
 def _refuse(system: System, ch) -> None:
     """What the rail's current bound is made for: a linear coil without a moving armature,
-    a voltage-mode hold (fixed or supply table) and one switch. Anything else is refused
-    in one line."""
+    a voltage-mode (fixed, supply-table or closed-loop) or current-mode hold and one
+    switch. Anything else is refused in one line."""
     d = ch.drive
     why = None
     if d.coil.flux_current:
         key, why = "coil.flux_current", "a flux-linkage curve"
     elif d.armature is not None:
         key, why = "armature", "a moving armature"
-    elif d.hold.mode != "voltage":
-        key, why = "hold.mode", "a latching coil" if d.hold.mode == "latch" else "a current-mode hold"
-    elif d.hold.regulation == "closed_loop":
-        key, why = "hold.regulation", "a closed-loop hold"
+    elif d.hold.mode == "latch":
+        key, why = "hold.mode", "a latching coil"
     elif d.switch.topology == "full_bridge":
         key, why = "switch.topology", "a full bridge"
     elif d.coil.eddy_resistance:
@@ -536,7 +607,7 @@ def _refuse(system: System, ch) -> None:
     if why is not None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
                          "in a system yet; expected a linear coil, no [armature], one switch and a "
-                         "voltage-mode fixed or supply-table hold")
+                         "voltage-mode fixed, supply-table or closed-loop hold, or a current-mode hold")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:
@@ -552,14 +623,15 @@ def _droop(system: System, channels, designs, rails, offsets) -> dict:
     and freewheel drop): every peak and every hold's PWM on the shared timer, the duty the
     firmware reads there (the reading low: the highest); up to the last peak's end plus
     five ``R_s C`` and two PWM periods. A hold whose off-times go through a clamp across
-    the switch draws from the rail while off too: then the peaks alone."""
+    the switch draws from the rail while off too, and a current-mode hold switches on its
+    own thresholds: then the peaks alone."""
     s = system.supply
     if not s.source_resistance > 0:
         return {}
     out = {}
     for name, ks in rails.items():
         r_on, r_off, v_off, l, tp, duty = [], [], [], [], [], []
-        clamp = False
+        clamp = regulated = False
         for k in ks:
             d = designs[k]
             drv = d.drive
@@ -569,6 +641,7 @@ def _droop(system: System, channels, designs, rails, offsets) -> dict:
                               diode_factor=tol.diode_factor, fast_factor=tol.fast_factor,
                               sense_factor=tol.sense_factor)
             clamp = clamp or (drv.freewheel.type == "clamp" and not lp.bypassed)
+            regulated = regulated or d.hold.mode == "current"
             r_on.append(float(np.min(lp.r_on)))
             r_off.append(float(np.min(lp.r_off)))
             v_off.append(float(np.min(lp.v_off)))
@@ -582,7 +655,7 @@ def _droop(system: System, channels, designs, rails, offsets) -> dict:
         rows = {}
         for view, on in (("together", [0.0] * len(ks)), ("staggered", on_s)):
             ends = [o + t for o, t in zip(on, tp)]
-            if clamp:
+            if clamp or regulated:
                 low, when = shared_bus.lowest_bus(v, s.source_resistance, s.capacitance, r_on, l, on, ends)
             else:
                 t_end = max(ends) + 5 * s.source_resistance * s.capacitance + 2 * period
@@ -597,6 +670,8 @@ def _droop(system: System, channels, designs, rails, offsets) -> dict:
                      "lowest_bus_staggered_time_s": rows["staggered"][1],
                      "droop_method": ("the peaks alone (a hold through a clamp across the switch draws "
                                       "from the rail while off)" if clamp else
+                                      "the peaks alone (a current-mode hold switches on its own "
+                                      "thresholds, not on the shared timer)" if regulated else
                                       "every peak and every hold's PWM on the shared timer, exact"),
                      "hold_droop_v": s.source_resistance * sum(
                          designs[k].hold.max_mean_current_a * designs[k].hold.duty for k in ks)}

@@ -64,6 +64,12 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
                          f"at up to {f_max:.6g} Hz with {points} points a segment is about "
                          f"{samples:,.0f} samples, more than the {MAX_WAVEFORM_SAMPLES:,} one run may "
                          "have: shorten --hold-time or lower --points")
+    for c in result.channels:
+        if c.design.hold.mode == "current":
+            raise InputError(c.design.drive.source, "hold.mode",
+                             f"channel {c.name!r}: simulate SYSTEM.toml runs every hold on the shared "
+                             "timer, and a current-mode hold switches on its own thresholds; simulate "
+                             "its drive file alone (coildrive simulate DRIVE.toml)")
     runs, periods, duties = [], [], []
     for c in result.channels:
         d = c.design
