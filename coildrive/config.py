@@ -1504,9 +1504,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                  supply: Supply, hold: Hold, pull_in: PullIn, armature: Armature | None,
                  duty) -> None:
     """What the boosted peak (``supply.boost``) is modelled with: a linear coil, a low-side
-    or a high-side switch, a diode/zener/resistor freewheel, a stiff main supply, a voltage-mode open-loop
-    hold, a peak that ends at its threshold, no moving armature. Anything else is refused
-    in one line."""
+    or a high-side switch, a diode/zener/resistor freewheel, a stiff main supply, a
+    voltage-mode open-loop hold, a peak that ends at its threshold, no moving armature.
+    Anything else is refused in one line."""
     if not supply.boosted:
         return
     if supply.boost * (1.0 - supply.boost_tolerance) <= supply.max:
