@@ -138,16 +138,54 @@ def test_design_header_and_simulate(tmp_path):
     assert rows["node_voltage_v"].min() == pytest.approx(-V_FW, abs=1e-4)
 
 
+def test_emulated_drive_passes_check(tmp_path):
+    # plumbing (the emulator shares the design's physics): the virtual device's capture of
+    # the high-side boost passes check, a coil 40 % over its resistance fails it
+    from test_emulator_device import capture_of, run as run_device
+
+    from coildrive.bench.check import check_capture
+    from coildrive.bench.device import DeviceOptions, VirtualDevice
+    from coildrive.config import load_drive
+    from coildrive.design import design
+
+    d = design(load_drive(_variant(tmp_path)))
+    for scale, ok in ((1.0, True), (1.4, False)):
+        dev = VirtualDevice(d.drive, DeviceOptions(noise_codes=1.0, seed=3, resistance_scale=scale), design=d)
+        msgs, _ = run_device(dev, 0.05 + dev.period, step=0.05)
+        assert check_capture(capture_of(msgs, tmp_path / f"{scale}.cdcap"), d).ok is ok, scale
+
+
 @pytest.mark.compiler
-def test_firmware_driver_builds(tmp_path):
-    # gcc, strict: the reference driver firmware-driver writes for the high-side boost
+def test_firmware_driver_builds_and_runs(tmp_path):
+    # gcc, strict: the reference driver firmware-driver writes for the high-side boost (the
+    # driver switches the boost and Q1 whatever side Q1 is on); then in the loop, in
+    # process, one actuation at the nominal point ends the peak at the threshold, no fault
     from driver_harness import STRICT
 
+    from coildrive.bench import FrameDecoder
+    from coildrive.bench.device import DeviceOptions
+    from coildrive.bench.firmware_device import FirmwareDevice
+    from coildrive.bench.messages import Event, EventKind
+    from coildrive.codegen.host_build import build_firmware
+    from coildrive.config import load_drive
+    from coildrive.design import design
+
     gcc = require_tool("gcc")
-    fw = tmp_path / "fw"
-    r = run_cli("firmware-driver", str(_variant(tmp_path)), "--out", str(fw))
+    fw, path = tmp_path / "fw", _variant(tmp_path)
+    r = run_cli("firmware-driver", str(path), "--out", str(fw))
     assert r.returncode == 0, r.stderr
     assert "coil_port_boost" in (fw / "coil_driver.h").read_text()
     c = subprocess.run([gcc, *STRICT, "-c", str(fw / "coil_driver.c"), "-o", str(tmp_path / "d.o")],
                        capture_output=True, text=True)
     assert c.returncode == 0, c.stderr
+    d = design(load_drive(path))
+    dev = FirmwareDevice(d, build_firmware(fw, d, cache=tmp_path / "cache"),
+                         DeviceOptions(first_actuation=0.002, noise_codes=1, seed=3, hold_time=0.005))
+    dec, events, t = FrameDecoder(), [], 0.0
+    while t < 0.1 and EventKind.OFF not in [e.kind for e in events]:
+        t += 0.005
+        events += [m for m in dec.feed(dev.read(t)) if isinstance(m, Event)]
+    kinds = [e.kind for e in events]
+    assert EventKind.PEAK_END in kinds and EventKind.OFF in kinds and EventKind.FAULT not in kinds, kinds
+    on, end = (next(e.index for e in events if e.kind == k) for k in (EventKind.ON, EventKind.PEAK_END))
+    assert (end - on) / d.drive.board.adc.sample_rate < d.boost.timeout_s
