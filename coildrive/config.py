@@ -1504,9 +1504,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                  supply: Supply, hold: Hold, pull_in: PullIn, armature: Armature | None,
                  duty) -> None:
     """What the boosted peak (``supply.boost``) is modelled with: a linear coil, a low-side
-    switch, a diode/zener/resistor freewheel, a stiff main supply, a voltage-mode open-loop
-    hold, a peak that ends at its threshold, no moving armature. Anything else is refused
-    in one line."""
+    or a high-side switch, a diode/zener/resistor freewheel, a stiff main supply, a
+    voltage-mode open-loop hold, a peak that ends at its threshold, no moving armature.
+    Anything else is refused in one line."""
     if not supply.boosted:
         return
     if supply.boost * (1.0 - supply.boost_tolerance) <= supply.max:
@@ -1518,8 +1518,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     elif coil.eddy_resistance:
         key = "coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance"
         why = "an eddy-current term"
-    elif switch.topology != "low_side":
-        key, why = "switch.topology", f"a {switch.topology.replace('_', '-')} switch (only the low-side switch)"
+    elif switch.topology == "full_bridge":
+        key, why = "switch.topology", "a full bridge (only a low-side or a high-side switch)"
     elif freewheel.type == "clamp":
         key, why = "freewheel.type", "a clamp across the switch"
         source = fw_origins.get("type", source)
@@ -1538,7 +1538,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = "duty", "an on/off cycle"
     if why is not None:
         raise InputError(source, key, f"the boosted peak (supply.boost) is not modelled with {why}: "
-                         "expected boost left out, or a linear coil, a low-side switch, a "
+                         "expected boost left out, or a linear coil, a low-side or high-side switch, a "
                          "diode/zener/resistor freewheel without split decay, a stiff main supply, a "
                          "voltage-mode open-loop hold, a peak without compensate or settle_time, no "
                          "[armature] and no [duty]")

@@ -75,7 +75,11 @@ def corners_of(grid: CornerGrid, res: PointResults, losses: HoldLosses | None = 
     topo = None if drive is None else topology_of(drive)
     node = None
     if topo is not None and topo.shows_node:
-        node = topo.node_voltage(hi.supply, hi.peak_switch_voltage, 0.0)
+        # the node is the rail less the switch: a boosted peak's turn-off from the boost
+        # rail leaves it the freewheel voltage below ground, as from the main supply
+        v_sw = (hi.loop.switch_voltage(drive, hi.interrupt_current) if drive.supply.boosted
+                else hi.peak_switch_voltage)
+        node = topo.node_voltage(hi.supply, v_sw, 0.0)
     for k in range(len(grid)):
         out.append(Corner(
             label=grid.label(k),

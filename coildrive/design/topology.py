@@ -161,7 +161,8 @@ def topology_cautions(drive: Drive, result: TopologyResult | None) -> list[str]:
         f"({result.lowest_node_event}, {result.lowest_node_corner}): whatever connects to it -- the "
         "gate driver's source pin, a diagnostics divider into the microcontroller, a cable to the "
         "coil -- must take that negative voltage.",
-        "A high-side N-channel switch needs its gate driven above the supply for the whole peak "
+        "A high-side N-channel switch needs its gate driven above the supply"
+        + (" (the boost rail in a boosted peak)" if drive.supply.boosted else "") + " for the whole peak "
         "(a charge pump or an isolated supply, or a P-channel part): a bootstrap capacitor alone "
         "recharges only while the node is low (common practice).",
     ]

@@ -13,6 +13,10 @@ of the coil)::
           path  ──────────┤ drain
                          Q1  low-side switch ── R_sense ── 0 V
 
+A high-side switch sits between the same rail (the top node above) and the coil, whose
+other end goes to ground; the freewheel path runs from ground to the switch node. The
+peak's loop is the same (:mod:`coildrive.model.high_side`).
+
 In the peak Q_b and Q1 are on; ``D_m`` blocks while the boost capacitor stays above the
 main supply. The loop: ``L di/dt = v_C - (R_on + R_b) i``, ``C_b dv_C/dt = -i``,
 ``i(0) = 0``, ``v_C(0) = V_b`` -- with ``x = -C_b v_C`` the series RLC circuit of

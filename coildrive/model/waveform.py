@@ -161,6 +161,10 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
     if drive.supply.boosted:
         w = dataclasses.replace(w, boost_voltage=boost_model.voltage_trace(
             w.time, peak_time, nominal_boost(drive, r_on, ind), drive.supply.boost_power))
+        if w.node_voltage is not None:   # a high-side switch: fed from the boost rail in the peak
+            rail = np.where((w.time <= peak_time) & (w.switch_on == 1),
+                            w.boost_voltage - w.current * drive.supply.boost_resistance, supply)
+            w = dataclasses.replace(w, **node_columns(drive, rail, w.current, w.switch_on, w.switch_voltage))
     return w
 
 
