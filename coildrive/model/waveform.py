@@ -478,8 +478,9 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
     p = params_from_loop(drive.armature, lp, l_factor)
     split = split_decay(drive)
+    bridge = full_bridge(drive)   # the hold decays slowly, the release fast into the bus
     fast = p_rel = None
-    if split:
+    if split or bridge:
         fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
         p_rel = params_from_loop(drive.armature, fast, l_factor)
     lead = drive.freewheel.bypass_lead if split else 0.0
@@ -511,6 +512,8 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
 
     def release_segments(t_cut):
         """The off segments after the final turn-off at ``t_cut``, each naming its path."""
+        if bridge:
+            return [(t_cut + bound, False, big, "release")]
         if not split:
             return [(t_cut + bound, False, big)]
         if lag > 0:
@@ -559,6 +562,9 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     on = tr.switch_on
     v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
     bypass = None
+    if bridge:   # the switches see the fast decay's voltage from the final turn-off on
+        fast_v, _ = _switch_and_sense(drive, fast, supply, current, on)
+        v_sw = np.where(tr.time < t_off, v_sw, fast_v)
     if split:
         bypass = (tr.time < t_open).astype(np.int8)
         fast_v, _ = _switch_and_sense(drive, fast, supply, current, on)
