@@ -17,7 +17,7 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 
-from conftest import BOARDS, EXAMPLES
+from conftest import BOARDS, EXAMPLES, first_switch_events
 from coildrive.config import load_drive
 from coildrive.design import design
 from coildrive.model.armature import params_from_loop
@@ -221,20 +221,12 @@ def test_emulate_runs_it_and_firmware_in_the_loop_refuses_it(tmp_path):
     passes its capture (both share the design's physics: plumbing, not numbers).
     Firmware in the loop refuses it in one line."""
     from coildrive.bench.check import check_capture
-    from coildrive.bench.device import DeviceOptions, VirtualDevice
     from coildrive.bench.firmware_device import FirmwareDevice
-    from coildrive.bench.messages import Event, EventKind
-    from coildrive.bench.protocol import FrameDecoder
     from coildrive.bench.synth import synth_design_capture
 
     drive = _drive(tmp_path)
     des = design(drive)
-    dev = VirtualDevice(drive, DeviceOptions(first_actuation=0.01, hold_time=0.004), design=des)
-    dec, msgs, t = FrameDecoder(), [], 0.0
-    while t < 0.01 + dev.period - 0.001:
-        t = min(0.01 + dev.period - 0.001, t + 0.05)
-        msgs += dec.feed(dev.read(t))
-    switch = [m.value for m in msgs if isinstance(m, Event) and m.kind == EventKind.SWITCH]
+    switch = first_switch_events(drive, des)
     assert switch[:2] == [1, 0], "seats during the peak, opens after the release"
     cap = synth_design_capture(des, actuations=1, hold_time=0.05, noise_codes=1.0, seed=5)  # settled
     report = check_capture(cap, des)
