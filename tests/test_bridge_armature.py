@@ -233,3 +233,15 @@ def test_emulate_runs_it_and_firmware_in_the_loop_refuses_it(tmp_path):
     assert report.ok, [(i.name, i.status, i.detail) for i in report.items]
     with pytest.raises(ValueError, match=r"\[armature\] on a full bridge"):
         FirmwareDevice.check_design(des)
+
+
+def test_live_tuning_refuses_it_in_one_line(tmp_path):
+    from typer.testing import CliRunner
+
+    from coildrive.cli import app
+
+    drive = _drive(tmp_path)
+    res = CliRunner().invoke(app, ["tune", drive.source, "--port", "/dev/null"])
+    assert res.exit_code == 2, res.stdout
+    lines = res.stderr.strip().splitlines()
+    assert len(lines) == 1 and "armature" in lines[0] and drive.source in lines[0], res.stderr
