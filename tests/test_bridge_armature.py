@@ -196,6 +196,10 @@ def test_design_and_simulate_release_on_the_fast_decay(tmp_path):
     # the switches see the bus and a body diode while the current returns
     during = (w.time > t_off) & (w.current > 0.01)
     assert np.all(w.switch_voltage[during] >= V_BUS)
+    # the four switches: all open after the final turn-off, the coil at -(V_bus + 2 V_d) and below
+    assert all(np.all(state[w.time > t_off] == 0) for state in w.switches.values())
+    assert np.all(w.coil_voltage[during] <= -ref.v_fast)
+    assert "high_a_on" in w.to_csv().splitlines()[0]
 
 
 def test_an_armature_stuck_open_gives_the_plain_bridge_numbers(tmp_path):

@@ -562,9 +562,10 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     on = tr.switch_on
     v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
     bypass = None
-    if bridge:   # the switches see the fast decay's voltage from the final turn-off on
+    extra = None
+    if bridge:   # the four switches' states; the fast decay's voltage from the final turn-off
         fast_v, _ = _switch_and_sense(drive, fast, supply, current, on)
-        v_sw = np.where(tr.time < t_off, v_sw, fast_v)
+        v_sw, sense, extra = _bridge_columns(drive, supply, tr.time, current, on, fast_v, t_off)
     if split:
         bypass = (tr.time < t_open).astype(np.int8)
         fast_v, _ = _switch_and_sense(drive, fast, supply, current, on)
@@ -587,7 +588,7 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
             events[name] = times[-1] if name == "open" else times[0]
     return Waveform(tr.time, current, on, v_sw, sense, events, label, position=tr.position,
                     velocity=tr.velocity, bypass_on=bypass,
-                    **node_columns(drive, supply, current, on, v_sw))
+                    **(extra if bridge else node_columns(drive, supply, current, on, v_sw)))
 
 
 def hold_samples(t_start: float, i0: float, v: float, r_on: float, r_off: float, v_off: float,
