@@ -81,7 +81,7 @@ BOARD_ONLY_EXAMPLES = {"fuel-valve-boost-12v": "lab-m32-zener"}
 
 def loads(example: Path, board: str) -> bool:
     """Whether the bundled ``example`` loads on the bundled ``board`` (a full-bridge board
-    refuses the examples with split decay or an [armature]: tests/test_bridge_design.py
+    refuses the examples with split decay, a Zener or a boosted peak: tests/test_bridge_design.py
     checks those refusals)."""
     from coildrive.config import load_drive
     from coildrive.errors import InputError
