@@ -239,6 +239,13 @@ def test_emulate_runs_it_and_firmware_in_the_loop_refuses_it(tmp_path):
     assert report.ok, [(i.name, i.status, i.detail) for i in report.items]
     with pytest.raises(ValueError, match=r"\[armature\] on a full bridge"):
         FirmwareDevice.check_design(des)
+    from typer.testing import CliRunner
+
+    from coildrive.cli import app
+
+    res = CliRunner().invoke(app, ["emulate", drive.source, "--firmware", str(tmp_path)])
+    lines = res.stderr.strip().splitlines()
+    assert res.exit_code == 2 and len(lines) == 1 and "armature" in lines[0], res.stderr
 
 
 def test_live_tuning_refuses_it_in_one_line(tmp_path):
