@@ -1548,7 +1548,7 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
                   supply: Supply, hold: Hold, armature: Armature | None) -> None:
     """What a full bridge needs: its freewheel path is its switches' body diodes (type
     "diode", no split decay: the bridge decays slowly and fast by itself), a voltage-mode
-    hold and no moving armature (not modelled on a bridge yet), and with a supply that
+    hold, and with a supply that
     cannot sink the returned energy, the bulk capacitance. (The supply's ``sink`` and
     ``capacitance`` keys mean nothing to the other topologies, which return no energy.)"""
     if switch.topology != "full_bridge":
@@ -1569,9 +1569,10 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
     if hold.mode not in ("voltage", "latch"):
         raise InputError(source, "hold.mode", f"{hold.mode!r} with a full bridge: coildrive designs a "
                          "full bridge's hold in voltage mode only, expected mode = \"voltage\"")
-    if armature is not None:
-        raise InputError(source, "armature", "a moving armature on a full bridge is not modelled: "
-                         "expected no [armature] section with switch.topology = \"full_bridge\"")
+    if armature is not None and hold.fast_fraction > 0:
+        raise InputError(source, "hold.fast_fraction", f"{hold.fast_fraction:g} with a moving [armature]: "
+                         "the armature on a full bridge holds on the slow decay only, expected 0 or "
+                         "the key left out")
     if not supply.sink and not supply.capacitance > 0:
         raise InputError(source, "supply.capacitance", "missing: with sink = false the returned "
                          "energy lands on the bulk capacitance, expected its value (e.g. \"470 uF\")")

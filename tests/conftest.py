@@ -81,7 +81,7 @@ BOARD_ONLY_EXAMPLES = {"fuel-valve-boost-12v": "lab-m32-zener"}
 
 def loads(example: Path, board: str) -> bool:
     """Whether the bundled ``example`` loads on the bundled ``board`` (a full-bridge board
-    refuses the examples with split decay or an [armature]: tests/test_bridge_design.py
+    refuses the examples with split decay, a Zener or a boosted peak: tests/test_bridge_design.py
     checks those refusals)."""
     from coildrive.config import load_drive
     from coildrive.errors import InputError
@@ -95,3 +95,18 @@ def loads(example: Path, board: str) -> bool:
             return False
         raise
     return True
+
+
+def first_switch_events(drive, design, first: float = 0.01, hold_time: float = 0.004) -> list[int]:
+    """The position-switch event values the model's virtual bench device streams over its
+    first actuation (``first`` s after start, ``hold_time`` s of hold)."""
+    from coildrive.bench.device import DeviceOptions, VirtualDevice
+    from coildrive.bench.messages import Event, EventKind
+    from coildrive.bench.protocol import FrameDecoder
+
+    dev = VirtualDevice(drive, DeviceOptions(first_actuation=first, hold_time=hold_time), design=design)
+    dec, msgs, t = FrameDecoder(), [], 0.0
+    while t < first + dev.period - 0.001:
+        t = min(first + dev.period - 0.001, t + 0.05)
+        msgs += dec.feed(dev.read(t))
+    return [m.value for m in msgs if isinstance(m, Event) and m.kind == EventKind.SWITCH]

@@ -27,7 +27,7 @@ import math
 import numpy as np
 import pytest
 
-from conftest import EXAMPLES, run_cli
+from conftest import EXAMPLES, first_switch_events, run_cli
 from coildrive.model import magnet
 from coildrive.model.armature import SEATED, OPENED
 from coildrive.model.armature_runs import pull_in, release
@@ -354,9 +354,6 @@ def test_design_simulate_and_emulate_a_saturating_latch(tmp_path):
     streams the actuation with the position switch closing then opening, and check
     passes a synthetic capture of it (the emulator and the synthetic captures share the
     model: plumbing, not numbers)."""
-    from coildrive.bench.device import DeviceOptions, VirtualDevice
-    from coildrive.bench.messages import Event, EventKind
-    from coildrive.bench.protocol import FrameDecoder
     from coildrive.config import load_drive
     from coildrive.design import design
 
@@ -373,12 +370,7 @@ def test_design_simulate_and_emulate_a_saturating_latch(tmp_path):
     data = np.genfromtxt(csv, delimiter=",", names=True)
     assert "seated at" in r.stderr, r.stderr
     assert np.min(data["position_m"]) == 0.0 and data["position_m"][-1] == pytest.approx(STROKE)
-    dev = VirtualDevice(drive, DeviceOptions(first_actuation=0.01, hold_time=0.004), design=des)
-    dec, msgs, t = FrameDecoder(), [], 0.0
-    while t < 0.01 + dev.period - 0.001:
-        t = min(0.01 + dev.period - 0.001, t + 0.05)
-        msgs += dec.feed(dev.read(t))
-    switch = [m.value for m in msgs if isinstance(m, Event) and m.kind == EventKind.SWITCH]
+    switch = first_switch_events(drive, des)
     assert switch[:2] == [1, 0], "seats during the peak, opens after the release"
     # check: a synthetic capture of the design passes; a stuck armature (the open curve
     # alone) fails on the missing dip

@@ -205,6 +205,9 @@ class FirmwareDevice(LineOutput):
         """``ValueError`` for a design the loop cannot run yet (see the module docstring)."""
         if design.hold.current_mode is not None:
             raise ValueError("firmware in the loop runs a voltage-mode (fixed duty or supply table) hold for now")
+        if design.drive.armature is not None and design.drive.switch.topology == "full_bridge":
+            raise ValueError("firmware in the loop does not run a moving [armature] on a full bridge: "
+                             "emulate it without --firmware (the model's device)")
 
     def _pull_in_flight(self, faulty, design, l_scale):
         """With an armature (not stuck): ``(time, current)`` of the pull-in with the switch

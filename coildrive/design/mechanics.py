@@ -135,7 +135,9 @@ def armature_checks(drive: Drive, grid: CornerGrid, res: PointResults, ar: Armat
     if bad.size == 0:
         add(Check("armature_releases", True,
                   f"back on the open stop at every corner, latest {ar.release_open_time_s * 1e3:.4g} ms "
-                  f"after turn-off ({ar.release_corner}) through the {drive.freewheel.type} path"))
+                  f"after turn-off ({ar.release_corner}) through the "
+                  + ("bridge's fast decay into the bus" if drive.switch.topology == "full_bridge"
+                     else f"{drive.freewheel.type} path")))
     else:
         k = int(bad[0])
         add(Check("armature_releases", False,

@@ -63,7 +63,10 @@ def bridge_result(drive: Drive, grid: CornerGrid, res: PointResults, peak_end,
                   trip_current: float) -> BridgeResult:
     """The energy a full bridge's fast decay returns to the bus at every turn-off of
     ``res`` (closed form at a fixed bus, :mod:`coildrive.model.bridge`), and with a supply
-    that cannot sink it the bus pump-up on the bulk capacitance (series RLC, exact)."""
+    that cannot sink it the bus pump-up on the bulk capacitance (series RLC, exact). With
+    an ``[armature]`` the release's energy is ``V_bus`` times the armature run's charge
+    (:func:`coildrive.model.armature_runs.release` on the fast path) and its pump-up is
+    bounded by that charge on the capacitor."""
     lp = release_loop(res)
     supply = np.asarray(res.supply, float)
     currents = event_currents(res, peak_end, trip_current)
@@ -72,6 +75,12 @@ def bridge_result(drive: Drive, grid: CornerGrid, res: PointResults, peak_end,
         t0 = decay_time(0.0, i, lp.r_off, lp.v_off, lp.inductance)
         q, _ = decay_integrals(t0, i, lp.r_off, lp.v_off, lp.inductance)
         returned[event] = supply * q
+    arm = res.armature
+    if arm is not None:
+        # the release as the armature model runs it: the armature lets go during the fast
+        # decay and its falling inductance feeds the bus (the whole charge goes back at V_bus)
+        q_arm = np.reshape(arm.release.charge, np.shape(supply))
+        returned["end of hold"] = supply * np.where(np.isfinite(q_arm), q_arm, 0.0)
     k_rel = worst(returned["end of hold"])
     worst_event = max(returned, key=lambda e: float(np.max(returned[e])))
     k_w = worst(returned[worst_event])
@@ -90,6 +99,13 @@ def bridge_result(drive: Drive, grid: CornerGrid, res: PointResults, peak_end,
     if not sup.sink:
         pumps = {event: pump_up(i, supply, sup.capacitance, lp.r_off, lp.inductance, lp.diode(drive))
                  for event, i in currents.items()}
+        if arm is not None:
+            # no closed form with the armature moving: bound the release's rise by its
+            # whole charge at the fixed bus landing on the capacitor (a rising bus drains
+            # the flux sooner, with less charge)
+            p = pumps["end of hold"]
+            v2 = np.maximum(p.v2, supply + returned["end of hold"] / supply / sup.capacitance)
+            pumps["end of hold"] = dataclasses.replace(p, v2=v2, delta_v=v2 - supply)
         event = max(pumps, key=lambda e: float(np.max(pumps[e].v2)))
         k = worst(pumps[event].v2)
         v2 = float(pumps[event].v2[k])

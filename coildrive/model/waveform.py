@@ -482,8 +482,9 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
     p = params_from_loop(drive.armature, lp, l_factor)
     split = split_decay(drive)
+    bridge = full_bridge(drive)   # the hold decays slowly, the release fast into the bus
     fast = p_rel = None
-    if split:
+    if split or bridge:
         fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
         p_rel = params_from_loop(drive.armature, fast, l_factor)
     lead = drive.freewheel.bypass_lead if split else 0.0
@@ -515,6 +516,8 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
 
     def release_segments(t_cut):
         """The off segments after the final turn-off at ``t_cut``, each naming its path."""
+        if bridge:
+            return [(t_cut + bound, False, big, "release")]
         if not split:
             return [(t_cut + bound, False, big)]
         if lag > 0:
@@ -563,6 +566,10 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     on = tr.switch_on
     v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
     bypass = None
+    extra = None
+    if bridge:   # the four switches' states; the fast decay's voltage from the final turn-off
+        fast_v, _ = _switch_and_sense(drive, fast, supply, current, on)
+        v_sw, sense, extra = _bridge_columns(drive, supply, tr.time, current, on, fast_v, t_off)
     if split:
         bypass = (tr.time < t_open).astype(np.int8)
         fast_v, _ = _switch_and_sense(drive, fast, supply, current, on)
@@ -585,7 +592,7 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
             events[name] = times[-1] if name == "open" else times[0]
     return Waveform(tr.time, current, on, v_sw, sense, events, label, position=tr.position,
                     velocity=tr.velocity, bypass_on=bypass,
-                    **node_columns(drive, supply, current, on, v_sw))
+                    **(extra if bridge else node_columns(drive, supply, current, on, v_sw)))
 
 
 def hold_samples(t_start: float, i0: float, v: float, r_on: float, r_off: float, v_off: float,

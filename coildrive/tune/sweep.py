@@ -660,6 +660,9 @@ def check_tunable(drive: Drive, who: str, live: bool = False) -> None:
     if live and drive.hold.fast_fraction > 0:
         raise InputError(drive.source, "hold.fast_fraction", f"{who} a slow-decay hold only; tune "
                          "a mixed-decay hold offline (coildrive tune without --port)")
+    if live and drive.armature is not None and drive.switch.topology == "full_bridge":
+        raise InputError(drive.source, "armature", "live tuning does not support a moving armature on "
+                         "a full bridge yet: tune offline (coildrive tune without --port)")
     if drive.coil.eddy_resistance and live:
         key = "coil.eddy_time_constant" if drive.coil.eddy_time_constant else "coil.eddy_resistance"
         raise InputError(drive.source, key, "live tuning does not support an eddy-current term "
