@@ -1548,8 +1548,8 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
                   supply: Supply, hold: Hold, armature: Armature | None) -> None:
     """What a full bridge needs: its freewheel path is its switches' body diodes (type
     "diode", no split decay: the bridge decays slowly and fast by itself), a voltage-mode
-    hold, and with a supply that
-    cannot sink the returned energy, the bulk capacitance. (The supply's ``sink`` and
+    hold (or a latching coil's pulses), no mixed decay under a moving armature, and with a
+    supply that cannot sink the returned energy, the bulk capacitance. (The supply's ``sink`` and
     ``capacitance`` keys mean nothing to the other topologies, which return no energy.)"""
     if switch.topology != "full_bridge":
         if hold.fast_fraction > 0:
