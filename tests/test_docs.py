@@ -72,3 +72,66 @@ def test_relative_links_and_anchors_resolve():
             elif anchor and dest.suffix == ".md" and anchor not in _github_anchors(dest):
                 broken.append(f"{page.name}: {target} (no such heading)")
     assert not broken, broken
+
+
+def _shown_runs():
+    """``(command, shown output lines)`` for every ``$ coildrive ...`` in the README's code
+    blocks whose files are all in the repository (no pipe, no file made by an earlier
+    step of the prose)."""
+    import shlex
+
+    runs, block, inside = [], [], False
+    for line in (ROOT / "README.md").read_text().splitlines():
+        if line.startswith("```"):
+            if inside:
+                cmd = None
+                for ln in block + ["$ "]:
+                    if ln.startswith("$ "):
+                        if cmd is not None:
+                            runs.append((cmd, shown))
+                        cmd, shown = ln[2:], []
+                    elif cmd is not None:
+                        shown.append(ln)
+                block = []
+            inside = not inside
+        elif inside:
+            block.append(line)
+    out = []
+    for cmd, shown in runs:
+        words = shlex.split(cmd) if cmd and "|" not in cmd and "--port" not in cmd else []
+        # shown at 100 columns unless a line is wider (a table rich leaves unwrapped)
+        columns = str(max([100] + [len(ln) for ln in shown]))
+        if words and words[0].startswith("COLUMNS="):
+            columns, words = words[0].split("=", 1)[1], words[1:]
+        if not words or words[0] != "coildrive" or words[1] in ("emulate", "capture", "stream"):
+            continue
+        files = [w for w in words[2:] if w.endswith((".toml", ".cdcap", ".csv")) and not w.startswith("-")]
+        inputs = [w for w in files if w.startswith(("examples/", "boards/"))]
+        if any(w not in inputs for w in files if w.endswith((".cdcap",))) or \
+                any(w.endswith(".toml") and not (ROOT / w).exists() for w in files):
+            continue
+        out.append((cmd, columns, [str(ROOT / w) if w in inputs else w for w in words[1:]], shown))
+    return out
+
+
+def test_readme_outputs_are_what_the_commands_print(tmp_path, monkeypatch):
+    # every shown line (bar the elided "...") appears, spaces aside, in what the command
+    # prints today: a change that moves a figure must update the README with it
+    from typer.testing import CliRunner
+
+    from coildrive.cli import app
+
+    runs = _shown_runs()
+    assert len(runs) >= 8, [r[0] for r in runs]   # the parser still finds the usage examples
+    monkeypatch.chdir(tmp_path)
+
+    def norm(text):
+        return re.sub(r"\s+", " ", text).strip()
+    stale = []
+    for cmd, columns, args, shown in runs:
+        res = CliRunner().invoke(app, args, env={"COLUMNS": columns})
+        printed = norm(res.stdout + res.stderr)
+        for line in shown:
+            if line.strip() and "..." not in line and norm(line) not in printed:
+                stale.append(f"{cmd}: {line.strip()}")
+    assert not stale, "\n".join(stale[:20])
