@@ -19,7 +19,7 @@ import numpy as np
 from ..config import Drive
 from . import eddy
 from .circuit import Loop
-from .flux_waveform import stitch_periods
+from .flux_waveform import period_starts, stitch_periods
 
 #: Currents tabulated per segment kind.
 GRID = 20_000
@@ -123,12 +123,7 @@ def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: 
     period = 1.0 / frequency
     n = max(1, int(round(hold_time * frequency)))
     t_on, t_off = duty * period, (1.0 - duty) * period
-    starts = np.empty(n)
-    i = peak_end
-    for k in range(n):
-        starts[k] = i
-        top = float(pt.on.current(i, t_on))
-        i = float(pt.decay(top, t_off)) if k < n - 1 else top
+    starts = period_starts(pt.on.current, pt.decay, peak_end, n, t_on, t_off)
     frac = np.linspace(0.0, 1.0, points + 1)
     t0 = peak_time + np.arange(n)[:, None] * period
     on_t = np.broadcast_to(frac[None, :] * t_on, (n, points + 1))

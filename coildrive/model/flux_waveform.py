@@ -54,6 +54,19 @@ class Track:
         return self.t_off[0] - np.interp(i0, self.i_off, self.t_off)
 
 
+def period_starts(rise, decay, i0: float, n: int, t_on: float, t_off: float) -> np.ndarray:
+    """The current (A) at the start of each of ``n`` hold periods from ``i0`` A: each
+    period rises for ``t_on`` s (``rise(i, t)``) and, but for the last, decays for
+    ``t_off`` s (``decay(i, t)``)."""
+    starts = np.empty(n)
+    i = i0
+    for k in range(n):
+        starts[k] = i
+        top = float(rise(i, t_on))
+        i = float(decay(top, t_off)) if k < n - 1 else top
+    return starts
+
+
 def stitch_periods(t0, t_on: float, on_t, off_t, *values):
     """The hold's periods (rows: period start ``t0`` s, on-time sample times ``on_t`` and
     off-time ones ``off_t`` from their segment's start) as flat samples, without the
@@ -86,12 +99,7 @@ def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: 
     period = 1.0 / frequency
     n = max(1, int(round(hold_time * frequency)))
     t_on, t_off = duty * period, (1.0 - duty) * period
-    starts = np.empty(n)
-    i = peak_end
-    for k in range(n):
-        starts[k] = i
-        top = float(tr.rise(i, t_on))
-        i = float(tr.decay(top, t_off)) if k < n - 1 else top
+    starts = period_starts(tr.rise, tr.decay, peak_end, n, t_on, t_off)
     frac = np.linspace(0.0, 1.0, points + 1)
     t0 = peak_time + np.arange(n)[:, None] * period
     on_t = np.broadcast_to(frac[None, :] * t_on, (n, points + 1))

@@ -625,14 +625,12 @@ def hold_samples(t_start: float, i0: float, v: float, r_on: float, r_off: float,
 
         def to_zero(i):
             return decay_time(0.0, i, r_off, v_off, ind)
-    starts = np.empty(n)
-    i = i0
     if isinstance(ind, FluxCoil):
-        for k in range(n):
-            starts[k] = i
-            top = float(rise(i, t_on))
-            i = float(decay(t_off, top)) if k < n - 1 else top
+        from .flux_waveform import period_starts
+        starts = period_starts(rise, lambda i, t: decay(t, i), i0, n, t_on, t_off)
     else:
+        starts = np.empty(n)
+        i = i0
         e_on, e_off = math.exp(-t_on * r_on / ind), math.exp(-t_off * r_off / ind)
         a, b = v / r_on, v_off / r_off
         for k in range(n):
