@@ -1109,9 +1109,6 @@ def _read_coil(s: _Section, armature: Armature | None) -> tuple[Coil, dict[str, 
     if len(eddy) == 2:
         raise _both(s, "eddy_resistance", "eddy_time_constant", "the eddy-current term "
                     "(eddy_time_constant = inductance / eddy_resistance)")
-    if eddy and armature is not None:
-        raise s.fail(eddy[0], "an eddy-current term with [armature] is not supported yet: leave "
-                     "it out, or leave out [armature]")
     seated = _read_seated_curve(s, armature, table)
     coil = Coil(
         resistance=resistance,

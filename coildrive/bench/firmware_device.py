@@ -217,10 +217,13 @@ class FirmwareDevice(LineOutput):
             return None
         from ..model.armature import params_from_loop
         from ..model.armature_sim import simulate
-        p = params_from_loop(faulty.armature, self._loops["hold"], l_scale)
+        p = params_from_loop(faulty.armature, self._loops["hold"], l_scale, faulty.coil.eddy_resistance)
         span = (design.pull_in.peak_ticks + 2) / float(faulty.board.tick.rate) + 2.0 / design.timer.frequency_hz
         traj = simulate(p, [(span, True, 4000)])
-        return np.asarray(traj.time, float), np.asarray(traj.current, float)
+        # the magnetising current (with an eddy term the sensed terminal current follows
+        # from it, as in the rest of the device's periods)
+        i_m = traj.current if traj.magnetising_current is None else traj.magnetising_current
+        return np.asarray(traj.time, float), np.asarray(i_m, float)
 
     # ------------------------------------------------------------------ emulator interface
     def receive(self, data: bytes, now: float) -> list[Reply]:

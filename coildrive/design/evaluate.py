@@ -146,11 +146,11 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
     shape = np.shape(lp.v_on)
     fields = ("v_on", "r_on", "r_off", "v_off", "inductance", "r_coil", "supply")
     flat = Loop(*(np.ravel(getattr(lp, f)) for f in fields))
-    p = params_from_loop(drive.armature, flat, np.ravel(np.broadcast_to(l_factor, shape)))
+    p = params_from_loop(drive.armature, flat, np.ravel(np.broadcast_to(l_factor, shape)), drive.coil.eddy_resistance)
     p_rel = p
     if lp_rel is not None and lp_rel is not lp:
         flat_rel = Loop(*(np.ravel(np.broadcast_to(getattr(lp_rel, f), shape)) for f in fields))
-        p_rel = params_from_loop(drive.armature, flat_rel, np.ravel(np.broadcast_to(l_factor, shape)))
+        p_rel = params_from_loop(drive.armature, flat_rel, np.ravel(np.broadcast_to(l_factor, shape)), drive.coil.eddy_resistance)
     lag = max(-drive.freewheel.bypass_lead, 0.0) if p_rel is not p else 0.0
     want = np.ravel(np.broadcast_to(peak_time, shape))
     pin = rel = None

@@ -92,22 +92,33 @@ class ArmatureParams:
     #: ``None``: the linear ``L(x)``. With curves ``l_closed`` and ``beta`` are the
     #: small-signal values (time scales and error control only).
     curves: "GapCurves | None" = None
+    #: An eddy resistance across the magnetising branch, ohm per point
+    #: (:mod:`coildrive.model.eddy`); ``None``: no eddy term. With it ``lambda`` is the
+    #: magnetising branch's flux, :meth:`current` its current (the force's), and the
+    #: terminal current (:meth:`terminal`) is what the loop, the freewheel and ``q``,
+    #: ``sq`` carry.
+    eddy: np.ndarray | None = None
 
     @staticmethod
-    def make(curves: "GapCurves | None" = None, **values) -> "ArmatureParams":
-        """Broadcast keyword values (floats or arrays) to 1-D arrays of one length."""
-        names = [f.name for f in ArmatureParams.__dataclass_fields__.values() if f.name != "curves"]
+    def make(curves: "GapCurves | None" = None, eddy=None, **values) -> "ArmatureParams":
+        """Broadcast keyword values (floats or arrays) to 1-D arrays of one length
+        (``eddy``: the eddy resistance in ohm, or ``None``/0 for none)."""
+        names = [f.name for f in ArmatureParams.__dataclass_fields__.values()
+                 if f.name not in ("curves", "eddy")]
         unknown = set(values) - set(names)
         if unknown:
             raise TypeError(f"unknown armature parameter(s): {', '.join(sorted(unknown))}")
         arrays = np.broadcast_arrays(*(np.atleast_1d(np.asarray(values[n], float)) for n in names))
-        return ArmatureParams(**{n: np.array(a, float).ravel() for n, a in zip(names, arrays)},
-                              curves=curves)
+        out = {n: np.array(a, float).ravel() for n, a in zip(names, arrays)}
+        r_e = None
+        if eddy is not None and np.any(np.asarray(eddy, float) > 0):
+            r_e = np.array(np.broadcast_to(np.asarray(eddy, float), out["v_on"].shape), float)
+        return ArmatureParams(**out, curves=curves, eddy=r_e)
 
     @property
     def arrays(self) -> tuple[str, ...]:
-        """The names of the per-point array fields (all but ``curves``)."""
-        return tuple(n for n in self.__dataclass_fields__ if n != "curves")
+        """The names of the per-point array fields (all but ``curves`` and ``eddy``)."""
+        return tuple(n for n in self.__dataclass_fields__ if n not in ("curves", "eddy"))
 
     def __len__(self) -> int:
         return self.v_on.size
@@ -118,12 +129,16 @@ class ArmatureParams:
         if (a is None) != (b is None) or (a is not None and not (
                 a.open is b.open and a.seated is b.seated and np.array_equal(a.scale, b.scale))):
             return False
+        if (self.eddy is None) != (other.eddy is None) or (
+                self.eddy is not None and not np.array_equal(self.eddy, other.eddy)):
+            return False
         return all(np.array_equal(getattr(self, f), getattr(other, f)) for f in self.arrays)
 
     def take(self, k) -> "ArmatureParams":
         """The parameters of point(s) ``k`` (an index, slice or mask)."""
         return ArmatureParams(**{n: np.atleast_1d(getattr(self, n)[k]) for n in self.arrays},
-                              curves=None if self.curves is None else self.curves[k])
+                              curves=None if self.curves is None else self.curves[k],
+                              eddy=None if self.eddy is None else np.atleast_1d(self.eddy[k]))
 
     @property
     def l_open(self) -> np.ndarray:
@@ -133,13 +148,44 @@ class ArmatureParams:
     @property
     def coil_open(self):
         """The open coil for the closed-form segments (:mod:`coildrive.model.rl`): H, or
-        the open curve's :class:`~coildrive.model.flux.FluxCoil`."""
-        return self.l_open if self.curves is None else self.curves.coil_open
+        the open curve's :class:`~coildrive.model.flux.FluxCoil` (either wrapped in an
+        :class:`~coildrive.model.eddy.EddyCoil` with an eddy term)."""
+        return self._with_eddy(self.l_open if self.curves is None else self.curves.coil_open)
 
     @property
     def coil_closed(self):
-        """The seated coil for the closed-form segments: H, or the seated curve's coil."""
-        return self.l_closed if self.curves is None else self.curves.coil_seated
+        """The seated coil for the closed-form segments: H, or the seated curve's coil
+        (wrapped in an :class:`~coildrive.model.eddy.EddyCoil` with an eddy term)."""
+        return self._with_eddy(self.l_closed if self.curves is None else self.curves.coil_seated)
+
+    def _with_eddy(self, branch):
+        if self.eddy is None:
+            return branch
+        from .eddy import EddyCoil
+        return EddyCoil(branch, self.eddy)
+
+    def terminal(self, i_m, on, r_off=None, v_off=None) -> np.ndarray:
+        """Terminal current in A at magnetising current ``i_m`` A: with the switch ``on``
+        ``(V_on + R_e i_m) / (R_on + R_e)``, off ``(R_e i_m - V_off) / (R_off + R_e)``
+        while the freewheel conducts and 0 once that would be negative (the path
+        blocks). Without an eddy term the coil's current itself (0 or more).
+        ``r_off``/``v_off``: another freewheel path's (split decay's fast path)."""
+        i_m = np.asarray(i_m, float)
+        if self.eddy is None:
+            return np.maximum(i_m, 0.0)
+        r_off = self.r_off if r_off is None else r_off
+        v_off = self.v_off if v_off is None else v_off
+        re_ = self.eddy
+        return np.where(on, (self.v_on + re_ * i_m) / (self.r_on + re_),
+                        np.maximum((re_ * i_m - v_off) / (r_off + re_), 0.0))
+
+    @property
+    def block_current(self) -> np.ndarray:
+        """Magnetising current A below which the freewheel path blocks (terminal current
+        zero): ``V_off / R_e``; 0 without an eddy term."""
+        if self.eddy is None:
+            return np.zeros_like(self.v_off)
+        return np.maximum(self.v_off, 0.0) / self.eddy
 
     def flux_open(self, i) -> np.ndarray:
         """Flux linkage Wb at ``i`` A on the open stop."""
@@ -205,19 +251,21 @@ class ArmatureParams:
         return np.stack([self.l_closed * i_ref, self.stroke, v_ref])
 
 
-def params_from_loop(arm, lp, l_factor) -> ArmatureParams:
+def params_from_loop(arm, lp, l_factor, eddy_resistance: float = 0.0) -> ArmatureParams:
     """:class:`ArmatureParams` at operating points from a drive's ``[armature]`` (an
     :class:`~coildrive.config.Armature`) and a :class:`~coildrive.model.circuit.Loop`.
 
     ``l_factor`` (the inductance tolerance) scales both measured inductances, so the
-    equivalent gap stays and the force constant scales with it.
+    equivalent gap stays and the force constant scales with it. ``eddy_resistance``
+    (ohm, ``[coil] eddy_resistance``; 0 = none): the eddy term across the magnetising
+    branch (:mod:`coildrive.model.eddy`).
     """
     l_closed, beta = fit_gap(arm.inductance_open, arm.inductance_closed, arm.stroke)
     p = ArmatureParams.make(
         v_on=lp.v_on, r_on=lp.r_on, r_off=lp.r_off, v_off=lp.v_off,
         l_closed=l_closed * np.asarray(l_factor, float), beta=beta, stroke=arm.stroke,
         mass=arm.mass, preload=arm.spring_preload, rate=arm.spring_rate, load=arm.load_force,
-        damping=arm.damping, restitution=arm.restitution)
+        damping=arm.damping, restitution=arm.restitution, eddy=eddy_resistance or None)
     if not arm.open_current:
         return p
     from .flux import curve

@@ -69,6 +69,20 @@ class _Rhs:
         self.drive_v = np.where(on, p.v_on, -p.v_off)
         self.drive_r = np.where(on, p.r_on, p.r_off)
         self.live = live.astype(float)
+        #: the terminal current ``i_t = t0 + t1 i`` of the magnetising current ``i`` (see
+        #: :meth:`terminal`); ``None``: no eddy term, the coil's current is the terminal's
+        self.t0 = self.t1 = None
+        if p.eddy is not None:
+            # the loop seen from the magnetising branch (its Thevenin pair, model.eddy);
+            # blocked (off, not live): the flux dies through R_e alone, no terminal current
+            re_ = p.eddy
+            c = self.drive_r + re_
+            blocked = ~on & ~live
+            self.drive_v = np.where(blocked, 0.0, self.drive_v * re_ / c)
+            self.drive_r = np.where(blocked, re_, self.drive_r * re_ / c)
+            self.t0 = np.where(blocked, 0.0, np.where(on, p.v_on, -p.v_off) / c)
+            self.t1 = np.where(blocked, 0.0, re_ / c)
+            self.live = np.ones_like(self.live)
         self.f0 = (p.preload + p.rate * p.stroke + p.load) / p.mass
         self.km = p.rate / p.mass
         self.cm = p.beta * self.inv_lc / (2.0 * p.mass)
@@ -93,11 +107,31 @@ class _Rhs:
         jac[:, 2, 0] = -df_dl
         jac[:, 2, 1] = -self.km
         jac[:, 2, 2] = -self.dm
+        if self.t1 is not None:   # q and sq integrate the terminal current t0 + t1 i
+            i = self.t0 + self.t1 * i
+            di_dl, di_dx = self.t1 * di_dl, self.t1 * di_dx
         jac[:, 3, 0] = di_dl
         jac[:, 3, 1] = di_dx
         jac[:, 4, 0] = 2.0 * i * di_dl
         jac[:, 4, 1] = 2.0 * i * di_dx
         return jac
+
+    def terminal_rate(self, y, dy):
+        """The terminal current A at states ``y`` and its rate A/s given their
+        derivatives ``dy`` (an eddy term only: the distance to the freewheel's blocking)."""
+        lam, x = y[0], y[1]
+        if self.curves is None:
+            di_dl = (1.0 + self.beta * x) * self.inv_lc
+            i = lam * di_dl
+            di_dx = lam * self.beta * self.inv_lc
+        else:
+            i, di_dl, di_dx, _, _ = self.curves.state(lam, x)
+        return self.t0 + self.t1 * i, self.t1 * (di_dl * dy[0] + di_dx * dy[1])
+
+    def terminal(self, i):
+        """Terminal current A at magnetising current ``i`` A, in this flight's switch
+        state: the coil's current without an eddy term."""
+        return i if self.t1 is None else self.t0 + self.t1 * i
 
     def __call__(self, y: np.ndarray) -> np.ndarray:
         lam, x, v = y[0], y[1], y[2]
@@ -111,6 +145,8 @@ class _Rhs:
         out[0] = self.live * (self.drive_v - self.drive_r * i)
         out[1] = v
         out[2] = self.f0 - self.km * x - pull - self.dm * v
+        if self.t1 is not None:
+            i = self.t0 + self.t1 * i
         out[3] = i
         out[4] = i * i
         return out
@@ -234,7 +270,7 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
     :data:`SINGLE_POINT_SCALAR` is False or the coil has curves (``p.curves``: their
     tabulated law is numpy's); its ``path_*`` then hold the accepted steps only.
     """
-    if t.size == 1 and SINGLE_POINT_SCALAR and p.curves is None:
+    if t.size == 1 and SINGLE_POINT_SCALAR and p.curves is None and p.eddy is None:
         return _fly_single(p, t, y, t_end, active, on, live, rtol, record, query, query_y,
                            track, peak, max_steps, stiff)
     n = t.size
@@ -273,7 +309,12 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
         # stop events inside accepted steps
         seat = ok & (y_new[1] < 0.0)
         opn = ok & (y_new[1] > p.stroke)
-        zero = ok & ~on & live & (y_new[0] < 0.0)
+        if rhs.t1 is None:
+            zero = ok & ~on & live & (y_new[0] < 0.0)
+        else:   # an eddy term: the freewheel stops where the terminal current reaches zero
+            g_old, dg_old = rhs.terminal_rate(y, k1)
+            g_new, dg_new = rhs.terminal_rate(y_new, k7)
+            zero = ok & ~on & live & (g_new < 0.0)
         hit = seat | opn | zero
         theta = np.ones(n)
         kind = np.zeros(n, int)
@@ -282,7 +323,8 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
             for mask, g0, g1, d0, d1, code in (
                     (seat, y[1], y_new[1], k1[1], k7[1], SEAT),
                     (opn, p.stroke - y[1], p.stroke - y_new[1], -k1[1], -k7[1], OPEN),
-                    (zero, y[0], y_new[0], k1[0], k7[0], ZERO)):
+                    ((zero, y[0], y_new[0], k1[0], k7[0], ZERO) if rhs.t1 is None else
+                     (zero, g_old, g_new, dg_old, dg_new, ZERO))):
                 if mask.any():
                     th = np.where(mask, _root(g0, g1, d0, d1, h), 1.0)
                     first = mask & (th < theta)
@@ -290,7 +332,8 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
                     kind = np.where(first, code, kind)
             y_hit = _hermite(y, y_new, k1, k7, h, theta)
             y_hit[1] = np.where(kind == SEAT, 0.0, np.where(kind == OPEN, p.stroke, y_hit[1]))
-            y_hit[0] = np.where(kind == ZERO, 0.0, y_hit[0])
+            if rhs.t1 is None:   # (with an eddy term the flux outlasts the terminal current)
+                y_hit[0] = np.where(kind == ZERO, 0.0, y_hit[0])
             y_new = np.where(hit, y_hit, y_new)
         t_new = t + theta * h
         if query is not None:

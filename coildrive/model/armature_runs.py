@@ -225,6 +225,11 @@ def release(p: ArmatureParams, i_off, rtol: float = 1e-7, max_rounds: int = 4 * 
     t = t_un.copy()
     live = lam > 0
     zero_time = np.where(live, np.nan, t_un)
+    if p.eddy is not None:
+        # the freewheel conducts while the magnetising current is above V_off / R_e; below
+        # it the flux (and the force) dies through R_e alone: the unlatch may come later
+        live = np.where(held, i_stay, i_off) > p.block_current
+        zero_time = np.where(live, np.nan, decay_time(0.0, i_off, p.r_off, p.v_off, p.coil_closed))
     bound = time_bound(t_un, p.l_closed, p.r_off, p.mass, p.stroke, p.damping, p.opening_force(p.stroke))
     status = np.full(n, -1)
     open_time = np.full(n, np.inf)
@@ -243,7 +248,8 @@ def release(p: ArmatureParams, i_off, rtol: float = 1e-7, max_rounds: int = 4 * 
         zero = active & (fl.end == ZERO)
         zero_time = np.where(zero, t, zero_time)
         live = live & ~zero
-        y[0] = np.where(zero, 0.0, y[0])
+        if p.eddy is None:   # (with an eddy term the flux outlasts the terminal current)
+            y[0] = np.where(zero, 0.0, y[0])
         opn = active & (fl.end == OPEN)
         y[2] = np.where(opn, 0.0, y[2])
         stays = opn & (y[0] <= lam_start)

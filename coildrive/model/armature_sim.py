@@ -46,7 +46,8 @@ THIN = 8
 class Trajectory:
     """A simulated run: samples (s, V*s, m, m/s, 0/1, A*s, A^2*s) and the moments.
 
-    ``events`` maps names to times in s: ``move`` (leaves the open stop), ``impact``
+    ``current`` is the terminal current (what the loop carries); with an eddy term
+    ``magnetising_current`` is the flux's (A). ``events`` maps names to times in s: ``move`` (leaves the open stop), ``impact``
     (first touch of the seat; the current dip), ``seat`` (at rest on the seat),
     ``unlatch`` (leaves the seat), ``open`` (at rest on the open stop), ``zero`` (the
     current reaches zero); ``dip_current`` is the current at the impact in A. ``log``
@@ -63,6 +64,8 @@ class Trajectory:
     charge: np.ndarray
     square: np.ndarray
     current: np.ndarray
+    #: the magnetising current A (the flux's, the force's) with an eddy term, else None
+    magnetising_current: np.ndarray | None = None
     events: dict = field(default_factory=dict)
     log: list = field(default_factory=list)
     impacts: list = field(default_factory=list)
@@ -80,9 +83,15 @@ class _Point:
         for name in p.arrays:
             setattr(self, name, float(getattr(p, name)[0]))
         self.l_open = float(p.l_open[0])
-        # what the closed-form segments take at the stops: H, or the curves' coils
-        self.coil_open = self.l_open if p.curves is None else p.coil_open[0]
-        self.coil_closed = self.l_closed if p.curves is None else p.coil_closed[0]
+        # what the closed-form segments take at the stops: H, or the curves' coils (in an
+        # EddyCoil with an eddy term)
+        plain = p.curves is None and p.eddy is None
+        self.coil_open = self.l_open if plain else p.coil_open[0]
+        self.coil_closed = self.l_closed if plain else p.coil_closed[0]
+        #: the eddy resistance ohm (None: no eddy term) and the magnetising current A
+        #: below which the freewheel blocks
+        self.eddy = None if p.eddy is None else float(p.eddy[0])
+        self.i_block = float(p.block_current[0])
         self.i_start = float(p.start_current[0])
         self.i_stay = float(p.stay_current[0])
         self.lam_start = self.flux_at(self.i_start, False)
@@ -99,6 +108,12 @@ class _Point:
             return i * (self.l_closed if seated else self.l_open)
         out = self.p.flux_closed(i) if seated else self.p.flux_open(i)
         return float(out[0]) if np.ndim(i) == 0 else out
+
+    def terminal(self, i_m, on):
+        """Terminal current A at magnetising current ``i_m`` A with the switch ``on``
+        (the coil's current, at least 0, without an eddy term)."""
+        out = self.p.terminal(i_m, on)
+        return float(out[0]) if np.ndim(i_m) == 0 else out
 
     def current(self, lam, x):
         if self.p.curves is None:
@@ -121,10 +136,10 @@ class _Run:
         self.events: dict = {}
         self.log: list = []
         self.impacts: list = []
-        self.chunks: list = []  # (t, y(5 x k), on)
+        self.chunks: list = []  # (t, y(5 x k), on, point: its freewheel path)
 
     def emit(self, ts, ys, on):
-        self.chunks.append((np.atleast_1d(ts), np.atleast_2d(ys).reshape(5, -1), on))
+        self.chunks.append((np.atleast_1d(ts), np.atleast_2d(ys).reshape(5, -1), on, self.pt))
 
     def mark(self, name: str, first_only: bool = True):
         if not (first_only and name in self.events):
@@ -152,7 +167,11 @@ def _rest_segment(run: _Run, t_end: float, on: bool, points: int, stop) -> None:
             t_leave = 0.0 if run.y[0] > pt.lam_start else float(
                 rise_time(pt.i_start, i0, pt.v_on, pt.r_on, pt.coil_open))
     else:
-        if not run.live or i0 <= 0.0:
+        if pt.eddy is not None:
+            # an eddy term: the flux outlasts the terminal current, dying through R_e once
+            # the freewheel blocks (the EddyCoil's decay segments follow it)
+            i0 = max(i0, 0.0)
+        elif not run.live or i0 <= 0.0:
             run.live = False
             i0 = 0.0
         if seated:
@@ -173,6 +192,9 @@ def _rest_segment(run: _Run, t_end: float, on: bool, points: int, stop) -> None:
         elif run.live:
             i = decay_current(s, i0, pt.r_off, pt.v_off, ind)
             q, sq = decay_integrals(np.minimum(s, t_zero), i0, pt.r_off, pt.v_off, ind)
+        elif pt.eddy is not None:   # the freewheel blocked: the flux's tail through R_e
+            i = decay_current(s, i0, pt.r_off, pt.v_off, ind)
+            q = sq = np.zeros_like(s)
         else:
             i = np.zeros_like(s)
             q = sq = np.zeros_like(s)
@@ -182,13 +204,17 @@ def _rest_segment(run: _Run, t_end: float, on: bool, points: int, stop) -> None:
         run.y = ys[:, -1].copy()
     if dt == t_zero and not on and run.live:
         run.live = False
-        run.y[0] = 0.0
+        if pt.eddy is None:
+            run.y[0] = 0.0
         run.mark("zero")
         if stop(run):
             return
     if dt == t_leave and run.t < t_end + 1e-18:
         if seated:
-            run.y[0] = pt.lam_stay * (1.0 - 1e-12) if run.live else 0.0
+            if pt.eddy is not None:
+                run.y[0] = min(run.y[0], pt.lam_stay * (1.0 - 1e-12))
+            else:
+                run.y[0] = pt.lam_stay * (1.0 - 1e-12) if run.live else 0.0
             run.state = "free"
             run.mark("unlatch")
         else:
@@ -228,7 +254,7 @@ def _fly_point(run: _Run, t_end: float, on: bool, rtol: float, dense: int):
 
 
 def _fly_numpy(run: _Run, t_end: float, on: bool, rtol: float, dense: int):
-    if _flight.SINGLE_POINT_SCALAR and run.pt.p.curves is None:
+    if _flight.SINGLE_POINT_SCALAR and run.pt.p.curves is None and run.pt.eddy is None:
         return _fly_point(run, t_end, on, rtol, dense)
     pt = run.pt
     fl = fly(pt.p, np.array([run.t]), run.y[:, None], np.array([t_end]), np.array([True]),
@@ -279,7 +305,9 @@ def _fly_scipy(run: _Run, t_end: float, on: bool, method: str, rtol: float, dens
     opened.terminal, opened.direction = True, -1
 
     def zero(_t, y):
-        return y[0]
+        if pt.eddy is None:
+            return y[0]
+        return float(rhs.terminal(pt.current(y[0], y[1]))[0])   # the freewheel blocks
     zero.terminal, zero.direction = True, -1
 
     events = [seat, opened] + ([zero] if (not on and run.live) else [])
@@ -311,7 +339,7 @@ def _fly_scipy(run: _Run, t_end: float, on: bool, method: str, rtol: float, dens
         y_hit[1] = 0.0
     elif code == OPEN:
         y_hit[1] = pt.stroke
-    elif code == ZERO:
+    elif code == ZERO and pt.eddy is None:
         y_hit[0] = 0.0
     ys[:, int(np.argmax(ts))] = y_hit
     return ts, ys, code, t_hit, y_hit
@@ -321,6 +349,11 @@ def _free_segment(run: _Run, t_end: float, on: bool, method: str, rtol: float, d
     pt = run.pt
     if on:
         run.live = True
+    elif run.live and pt.eddy is not None and pt.current(run.y[0], run.y[1]) <= pt.i_block:
+        # an eddy term: the turn-off's step takes the terminal current to zero at once
+        run.live = False
+        run.mark("zero")
+        return
     if method == "numpy":
         ts, ys, code, t1, y1 = _fly_numpy(run, t_end, on, rtol, dense)
     else:
@@ -359,7 +392,8 @@ def _free_segment(run: _Run, t_end: float, on: bool, method: str, rtol: float, d
             run.mark("open", first_only=False)
     elif code == ZERO:
         run.live = False
-        run.y[0] = 0.0
+        if pt.eddy is None:
+            run.y[0] = 0.0
         run.mark("zero")
 
 
@@ -410,6 +444,10 @@ def simulate(p: ArmatureParams, schedule, state: str = "open", flux: float = 0.0
                              + (" or 'release'" if release_params is not None else
                                 " ('release' needs release_params)"))
         run.pt = paths[path]
+        if pt.eddy is not None and run.chunks and run.chunks[-1][2] != on and run.t < t_end:
+            # an eddy term steps the terminal current at a switch edge: a second row at the
+            # edge's time, in the new state (the magnetising current is continuous)
+            run.emit(run.t, run.y, on)
         while run.t < t_end and not stopped:
             guard += 1
             if guard > limit:
@@ -429,8 +467,16 @@ def simulate(p: ArmatureParams, schedule, state: str = "open", flux: float = 0.0
         ys[:, -1] = run.y  # a run ending on a stop ends with the state after the stop
     ons = np.concatenate([np.full(c[0].size, int(c[2])) for c in run.chunks]).astype(np.int8)
     cur = pt.current(ys[0], ys[1])
+    magnetising = None
+    if pt.eddy is not None:   # the terminal current of each piece's switch state and path
+        magnetising = cur
+        cur = np.concatenate([c[3].p.terminal(pt.current(c[1][0], c[1][1]), c[2])
+                              for c in run.chunks])
+        if ts[-1] == run.t:
+            cur[-1] = run.pt.p.terminal(magnetising[-1:], bool(ons[-1]))[0]
     return Trajectory(time=ts, flux=ys[0], position=ys[1], velocity=ys[2], switch_on=ons,
                       charge=ys[3], square=ys[4], current=np.maximum(cur, 0.0),
+                      magnetising_current=magnetising,
                       events=dict(run.events), log=list(run.log), impacts=list(run.impacts),
                       state=run.state, stopped=stopped)
 

@@ -480,13 +480,13 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     from .armature_sim import simulate
 
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
-    p = params_from_loop(drive.armature, lp, l_factor)
+    p = params_from_loop(drive.armature, lp, l_factor, drive.coil.eddy_resistance)
     split = split_decay(drive)
     bridge = full_bridge(drive)   # the hold decays slowly, the release fast into the bus
     fast = p_rel = None
     if split or bridge:
         fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
-        p_rel = params_from_loop(drive.armature, fast, l_factor)
+        p_rel = params_from_loop(drive.armature, fast, l_factor, drive.coil.eddy_resistance)
     lead = drive.freewheel.bypass_lead if split else 0.0
     lag = max(-lead, 0.0)
     big = 40 * points
@@ -510,7 +510,8 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
             schedule.append((start + period, False, points))
     i_max = float(p.v_on[0] / p.r_on[0])
     t_un = float(decay_time(min(float(p.stay_current[0]), i_max), i_max, p.r_off[0], p.v_off[0],
-                            p.coil_closed[0] if p.curves is not None else p.l_closed[0]))
+                            p.coil_closed[0] if p.curves is not None or p.eddy is not None
+                            else p.l_closed[0]))
     bound = float(time_bound(t_un, p.l_closed[0], p.r_off[0], p.mass[0], p.stroke[0],
                               p.damping[0], p.preload[0] + p.load[0]))
 
@@ -527,7 +528,7 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     schedule += release_segments(t_off)
     released = (lambda r: r.t >= t_off and r.state == "open" and not r.live)
     tr = None
-    if peak_time > 0:
+    if peak_time > 0 and p.eddy is None:
         # Fast path: seated at the end of the peak and the hold current never below the
         # stay current -- then the hold is the closed-form PWM of the seated coil (with
         # the coil's two curves, the seated curve's tabulated exact segments).
@@ -564,6 +565,14 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
                       release_params=p_rel)
     current = tr.current
     on = tr.switch_on
+    if p.eddy is not None:
+        # each switch edge has a row before and after the terminal current's step: the
+        # one after sits EDGE s later, so that time rises strictly (as _eddy_actuation)
+        step = np.diff(tr.time)
+        same = np.flatnonzero(step <= 1e-15) + 1
+        if same.size:
+            tr.time = tr.time.copy()
+            tr.time[same] = tr.time[same - 1] + min(EDGE, 0.01 * step[step > 1e-15].min(initial=1.0))
     v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
     bypass = None
     extra = None
@@ -591,7 +600,7 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
         if times:
             events[name] = times[-1] if name == "open" else times[0]
     return Waveform(tr.time, current, on, v_sw, sense, events, label, position=tr.position,
-                    velocity=tr.velocity, bypass_on=bypass,
+                    velocity=tr.velocity, bypass_on=bypass, magnetising_current=tr.magnetising_current,
                     **(extra if bridge else node_columns(drive, supply, current, on, v_sw)))
 
 
