@@ -19,7 +19,7 @@ import numpy as np
 import pytest
 
 from conftest import EXAMPLES, run_cli
-from test_eddy_coil import check_synthetic
+from test_eddy_coil import check_synthetic, firmware_actuation
 from coildrive.model import magnet
 from coildrive.model.armature import OPENED, SEATED, ArmatureParams
 from coildrive.model.armature_runs import pull_in, release
@@ -266,3 +266,20 @@ def test_design_simulate_and_check_with_an_armature(tmp_path):
     assert i[-1] == 0.0 and m[-1] > 0, "the flux outlasts the terminal current"
     assert np.all(np.diff(data[:, 0]) > 0), "time rises strictly (each edge's second row 1 ns on)"
     check_synthetic(tmp_path, path, 12.0)
+
+
+def test_compiled_driver_pulls_in_without_a_fault(tmp_path):
+    """The reference C driver in the loop (gcc) on the example latch with an eddy term:
+    the armature model's pull-in (its magnetising current, the terminal current sensed)
+    ends the peak and turns off with no fault -- the shorted-turns check is timed on the
+    open coil's branch, not the seated one's."""
+    from conftest import require_tool
+
+    require_tool("gcc")
+    from coildrive.bench.messages import Event, EventKind
+
+    path = _latch_with_eddy(tmp_path)
+    d, msgs = firmware_actuation(tmp_path, path, 12.0)
+    assert d.to_dict()["rise_check"]["inductance_h"] == pytest.approx(0.025)
+    kinds = [m.kind for m in msgs if isinstance(m, Event)]
+    assert EventKind.FAULT not in kinds and EventKind.PEAK_END in kinds and EventKind.OFF in kinds, kinds

@@ -301,30 +301,39 @@ def test_check_passes_a_capture_of_the_eddy_coil(tmp_path):
     assert rows["pull_in_time"]["predicted"] < t_flux
 
 
+def firmware_actuation(tmp_path, path, supply: float, until: float = 0.3):
+    """The reference C driver of the drive at ``path`` in the loop (compiled with gcc):
+    one actuation at ``supply`` V, 20 degC, a 5 ms hold; ``(design, messages)``."""
+    from coildrive.bench import FrameDecoder
+    from coildrive.bench.device import DeviceOptions
+    from coildrive.bench.firmware_device import FirmwareDevice
+    from coildrive.bench.messages import Event, EventKind
+    from coildrive.codegen.host_build import build_firmware
+
+    out = tmp_path / "fw"
+    r = run_cli("firmware-driver", str(path), "--out", str(out))
+    assert r.returncode == 0, r.stderr
+    d = design(load_drive(path))
+    dev = FirmwareDevice(d, build_firmware(out, d, cache=tmp_path / "cache"),
+                         DeviceOptions(supply=supply, coil_temp=20.0, first_actuation=0.002, seed=3,
+                                       hold_time=0.005))
+    dec, msgs, t = FrameDecoder(), [], 0.0
+    while t < until and EventKind.OFF not in [m.kind for m in msgs if isinstance(m, Event)]:
+        t += 0.005
+        msgs += dec.feed(dev.read(t))
+    return d, msgs
+
+
 def test_compiled_driver_streams_the_terminal_current(tmp_path):
     """The reference C driver in the loop (gcc) on the eddy coil: one actuation with no
     fault, and the codes just after the switch-on show the step V / (R_on + R_e)."""
     from conftest import require_tool
 
     require_tool("gcc")
-    from coildrive.bench import FrameDecoder
-    from coildrive.bench.device import DeviceOptions
-    from coildrive.bench.firmware_device import FirmwareDevice
     from coildrive.bench.messages import Event, EventKind, Samples
-    from coildrive.codegen.host_build import build_firmware
 
     path = _example_drive(tmp_path, 'eddy_resistance = "400 ohm"', EXAMPLES / "reagent-valve-zener-24v.toml")
-    out = tmp_path / "fw"
-    r = run_cli("firmware-driver", str(path), "--out", str(out))
-    assert r.returncode == 0, r.stderr
-    d = design(load_drive(path))
-    dev = FirmwareDevice(d, build_firmware(out, d, cache=tmp_path / "cache"),
-                         DeviceOptions(supply=24.0, coil_temp=20.0, first_actuation=0.002, seed=3,
-                                       hold_time=0.005))
-    dec, msgs, t = FrameDecoder(), [], 0.0
-    while t < 0.2 and EventKind.OFF not in [m.kind for m in msgs if isinstance(m, Event)]:
-        t += 0.005
-        msgs += dec.feed(dev.read(t))
+    d, msgs = firmware_actuation(tmp_path, path, 24.0)
     events = [m for m in msgs if isinstance(m, Event)]
     kinds = [m.kind for m in events]
     assert EventKind.FAULT not in kinds and EventKind.PEAK_END in kinds, kinds

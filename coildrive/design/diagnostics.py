@@ -85,7 +85,13 @@ def rise_check(drive: Drive, grid: CornerGrid, res: PointResults, conversion_hz:
     i_early = max(code - NOISE_CODES, 0) * lsb_a / high
     eddy_coil = isinstance(lp.inductance, EddyCoil)
     if eddy_coil:   # the terminal current steps at switch-on, then rises with the flux
-        ind = lp.inductance[...]
+        e = lp.inductance
+        if drive.armature is not None:   # of the open coil's branch, before the armature moves
+            mag = open_inductance(drive, res.l_factor)
+            mag = (mag.with_scale(np.broadcast_to(np.asarray(mag.scale, float), v.shape))
+                   if isinstance(mag, FluxCoil) else np.broadcast_to(np.asarray(mag, float), v.shape))
+            e = EddyCoil(mag, e.resistance)
+        ind = e[...]
         scale = np.broadcast_to(np.asarray(res.l_factor, float), v.shape)
         t = np.asarray(eddy.terminal_rise_time(i_early, v, r, ind), float)
     else:

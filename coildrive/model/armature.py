@@ -15,6 +15,14 @@ velocity ``v = dx/dt`` (m/s; negative while closing), and two running integrals
 ``lambda = L(x) i``; integrating ``lambda`` keeps the state smooth through the fast
 change of ``L`` near the seat, and makes the magnetic force independent of the gap.
 
+With an eddy resistance ``R_e`` across the magnetising branch (``ArmatureParams.eddy``,
+:mod:`coildrive.model.eddy`) ``lambda`` and ``i`` are the branch's, the force follows
+them, and the branch sees the loop's Thevenin pair: ``dlambda/dt = V R_e/(R + R_e) -
+R R_e/(R + R_e) i`` on and while the freewheel conducts (``V = -V_off``, ``R = R_off``);
+the terminal current ``(V + R_e i)/(R + R_e)`` is what ``q``, ``sq`` integrate. Where it
+reaches zero the freewheel blocks (an event of the steppers) and ``dlambda/dt = -R_e i``:
+the flux outlasts the terminal current.
+
 End stops: at ``x = 0`` the armature stops dead (or rebounds with ``v -> -e v`` when a
 restitution ``e`` is given; bouncing ends once the rebound is below
 :data:`REST_FRACTION` of the first impact speed); at ``x = stroke`` it stops dead. At a
