@@ -116,7 +116,8 @@ def _fly(coil, on):
 
 
 def reference_pull_in(coil, method):
-    """(move, seat, terminal current at PEAK, magnetising current at PEAK), s and A."""
+    """(move, seat, terminal current at PEAK, magnetising current at PEAK, terminal
+    current at the seat: the dip), s and A."""
     def starts(_t, y):
         return coil.closing_force(y[0]) - _open_force(STROKE)
     _, t_move, y = _solve(lambda _t, y: [_dpsi(coil, y[0], STROKE, True)], 0.0, [0.0], 1.0,
@@ -126,8 +127,9 @@ def reference_pull_in(coil, method):
         return y[1]
     seat.direction = -1
     _, t_seat, y = _solve(_fly(coil, True), t_move, [y[0], STROKE, 0.0], 1.0, [seat], method)
+    i_dip = _terminal(coil, y[0], 0.0, True)
     _, _, y = _solve(lambda _t, y: [_dpsi(coil, y[0], 0.0, True)], t_seat, [y[0]], PEAK, [], method)
-    return t_move, t_seat, _terminal(coil, y[0], 0.0, True), coil.current(y[0], 0.0)
+    return t_move, t_seat, _terminal(coil, y[0], 0.0, True), coil.current(y[0], 0.0), i_dip
 
 
 def reference_release(coil, method):
@@ -171,13 +173,14 @@ def test_pull_in_and_release_match_scipy(curve):
         from test_armature_curves import with_curves
         p, coil, method = with_curves(params()), Saturating(), "DOP853"
         assert p.eddy is not None and p.curves is not None
-    t_move, t_seat, i_term, i_mag = reference_pull_in(coil, method)
+    t_move, t_seat, i_term, i_mag, i_dip = reference_pull_in(coil, method)
     b = pull_in(p, peak_time=PEAK)
     assert b.status[0] == SEATED
     assert b.start_time[0] == pytest.approx(t_move, rel=1e-5)
     assert b.seat_time[0] == pytest.approx(t_seat, rel=1e-5)
     assert b.peak_end_current[0] == pytest.approx(i_mag, rel=1e-5)
     assert p.terminal(b.peak_end_current, True)[0] == pytest.approx(i_term, rel=1e-5)
+    assert b.dip_current[0] == pytest.approx(i_dip, rel=1e-5), "the dip the sense resistor sees"
     t_un, t_zero, t_open = reference_release(coil, method)
     r = release(p, I_OFF)
     assert r.status[0] == OPENED
@@ -206,11 +209,16 @@ def test_without_the_term_the_flux_dies_with_the_current():
     assert b.eddy is None and b.same_points(params(eddy=0.0))
 
 
-def test_energy_balance_of_a_full_actuation():
+@pytest.mark.parametrize("curve", [False, True], ids=["linear", "saturating"])
+def test_energy_balance_of_a_full_actuation(curve):
     """First law over on, seat, off, release to the open stop: what the supply gives
     goes into the copper, the freewheel element, the eddy resistance, the spring and
-    load, the damping, the impact and the field left at the end, within 1 %."""
+    load, the damping, the impact and the field left at the end, within 0.1 % (the field
+    energy of the curves: their W(psi, x), checked by quad in test_armature_curves.py)."""
     p = params()
+    if curve:
+        from test_armature_curves import with_curves
+        p = with_curves(p)
     tr = simulate(p, [(PEAK, True, 4000), (PEAK + 1.0, False, 4000)], points=4000,
                   stop=lambda r: r.t >= PEAK and r.state == "open" and not r.live)
     assert tr.stopped and tr.magnetising_current is not None
@@ -222,14 +230,14 @@ def test_energy_balance_of_a_full_actuation():
     freewheel = V_OFF * (q[-1] - q[k])
     ie = i - im                   # the eddy branch's current (each switch edge: two rows)
     eddy = R_E * np.trapezoid(ie**2, t)
-    field = 0.5 * tr.flux * im                               # linear: psi i_m / 2
+    field = p.field_energy(tr.flux, x) if curve else 0.5 * tr.flux * im   # linear: psi i_m / 2
     potential = -(PRE * x + RATE * (STROKE * x - x * x / 2)) - LOAD * x
     kinetic = 0.5 * MASS * v * v
     stops = sum(0.5 * MASS * (a**2 - b**2) for _, _, a, b in tr.impacts)
     terms = [copper, freewheel, eddy, field[-1] - field[0], potential[-1] - potential[0],
              kinetic[-1] - kinetic[0], DAMP * np.trapezoid(v * v, t), stops]
     assert eddy > 0.01 * supply and field[-1] > 0, terms
-    assert sum(terms) == pytest.approx(supply, rel=1e-2), (supply, terms)
+    assert sum(terms) == pytest.approx(supply, rel=1e-3), (supply, terms)   # measured 3e-6
 
 
 # ------------------------------------------------------------------- the drive file
@@ -283,3 +291,24 @@ def test_compiled_driver_pulls_in_without_a_fault(tmp_path):
     assert d.to_dict()["rise_check"]["inductance_h"] == pytest.approx(0.025)
     kinds = [m.kind for m in msgs if isinstance(m, Event)]
     assert EventKind.FAULT not in kinds and EventKind.PEAK_END in kinds and EventKind.OFF in kinds, kinds
+
+
+def test_the_cycles_peak_heat_bounds_the_moving_armatures(tmp_path):
+    """With an on/off cycle the peak's heat is a bound (design/thermal_cycle.py): at
+    least the copper + eddy loss of the armature model's own peak (first law, as above),
+    and not far above it."""
+    from coildrive.config import load_drive
+    from coildrive.design.thermal_cycle import peak_heat
+    from coildrive.model.armature import params_from_loop
+    from coildrive.model.circuit import loop
+
+    drive = load_drive(_latch_with_eddy(tmp_path))
+    r_e = drive.coil.eddy_resistance
+    for supply, temp, peak in ((10.8, 80.0, 0.03), (13.2, -20.0, 0.004)):
+        lp = loop(drive, supply, temp)
+        p = params_from_loop(drive.armature, lp, 1.0, r_e)
+        tr = simulate(p, [(peak, True, 4000)], points=4000)
+        heat = float(lp.r_coil) * tr.square[-1] + r_e * np.trapezoid(
+            (tr.current - tr.magnetising_current) ** 2, tr.time)
+        bound = float(peak_heat(drive, lp, peak))
+        assert heat <= bound <= 1.5 * heat, (supply, heat, bound)

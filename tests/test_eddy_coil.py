@@ -189,10 +189,11 @@ def test_actuation_matches_scipy_and_balances_energy(tmp_path, curve):
     assert total == pytest.approx(y2[1], rel=1e-6), "the model's books against scipy's"
 
 
-@pytest.mark.parametrize("curve, target", [(True, 0.22), (True, 0.5), (False, 0.22), (False, 0.5)])
+@pytest.mark.parametrize("curve, target", [(True, 0.22), (True, 0.5), (False, 0.22), (False, 0.5),
+                                           (True, 0.1), (False, 0.1)])   # 0.1 A: the freewheel blocks
 def test_hold_orbit_is_periodic_under_scipy(tmp_path, curve, target):
     """One period from the model's lowest magnetising current, integrated by scipy,
-    returns there; its mean and terminal ripple are the model's."""
+    returns there; its mean, terminal ripple and magnetising RMS are the model's."""
     from scipy.integrate import solve_ivp
 
     src = EXAMPLE if curve else EXAMPLES / "reagent-valve-zener-24v.toml"
@@ -214,9 +215,9 @@ def test_hold_orbit_is_periodic_under_scipy(tmp_path, curve, target):
 
     def rhs(t, y):
         i, im = terminal(t, y[0])
-        return [drive.coil.eddy_resistance * (i - im), i]
+        return [drive.coil.eddy_resistance * (i - im), i, im * im]
 
-    sol = solve_ivp(rhs, (0.0, period), [psi_a, 0.0], method="Radau", rtol=1e-11, atol=1e-14,
+    sol = solve_ivp(rhs, (0.0, period), [psi_a, 0.0, 0.0], method="Radau", rtol=1e-11, atol=1e-14,
                     max_step=period / 400, dense_output=True)
     t = np.linspace(0.0, period, 4001)
     i_t = np.array([terminal(x, float(sol.sol(x)[0]))[0] for x in t])
@@ -225,6 +226,10 @@ def test_hold_orbit_is_periodic_under_scipy(tmp_path, curve, target):
     assert end_im == pytest.approx(float(ss.i_min), rel=1e-6), "periodic"
     assert sol.y[1, -1] / period == pytest.approx(float(ss.mean), rel=1e-6)
     assert i_t.max() - i_t.min() == pytest.approx(float(ss.ripple), rel=1e-3)
+    # the magnetising current's RMS (a moving armature's hold force goes with it)
+    assert bool(ss.dcm) == (target < 0.2)
+    assert np.sqrt(sol.y[2, -1] / period) == pytest.approx(float(ss.magnetising_rms), rel=1e-6)
+    assert float(ss.magnetising_rms) < float(ss.rms)
 
 
 # ------------------------------------------------------------ design, simulate, emulate

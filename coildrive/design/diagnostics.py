@@ -169,8 +169,19 @@ def seat_check(drive: Drive, grid: CornerGrid, res: PointResults) -> SeatCheck |
         ind = lp.inductance.with_scale(np.broadcast_to(np.asarray(lp.inductance.scale, float), v.shape))
     i_dip = np.asarray(pin.dip_current, float)
     seated = np.isfinite(i_dip)
+    r = np.asarray(lp.r_on, float)
+    start, end = i_dip, i_dip + climb
+    if isinstance(lp.inductance, EddyCoil):
+        # the dip is the terminal current's, i = (V + R_e i_m) / (R + R_e): the seated
+        # branch's magnetising current climbs (R + R_e) / R_e times as far
+        r_e = lp.inductance.resistance
+        start = ((r + r_e) * i_dip - v) / r_e
+        end = start + climb * (r + r_e) / r_e
+        mag = lp.inductance.magnetising
+        ind = EddyCoil(mag.with_scale(np.broadcast_to(np.asarray(mag.scale, float), v.shape))
+                       if isinstance(mag, FluxCoil) else ind, np.broadcast_to(r_e, v.shape))
     with np.errstate(invalid="ignore", divide="ignore"):
-        t = np.asarray(rise_time(i_dip + climb, i_dip, v, np.asarray(lp.r_on, float), ind), float)
+        t = np.asarray(rise_time(end, start, v, r, ind), float)
     t = np.where(seated, t, np.nan)
     reachable = np.isfinite(t)
     k = int(np.nanargmax(np.where(reachable, t, np.nan))) if reachable.any() else 0

@@ -165,7 +165,9 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
         rel = (late_release(p, p_rel, np.ravel(ss.i_max), lag) if lag > 0 else
                release(p_rel, np.ravel(ss.i_max)))
     through, gap = p.stroke_current()
-    held, lift = hold_force_current(p, np.ravel(ss.i_min), np.ravel(ss.rms), np.ravel(ss.period))
+    # the force goes with the magnetising current (an eddy term's terminal RMS is higher)
+    rms = ss.rms if ss.magnetising_rms is None else ss.magnetising_rms
+    held, lift = hold_force_current(p, np.ravel(ss.i_min), np.ravel(rms), np.ravel(ss.period))
     return ArmatureFigures(params=p, pull_in=pin, release=rel, start_current=p.start_current,
                            stay_current=p.stay_current, stroke_current=np.atleast_1d(through),
                            stroke_gap=np.atleast_1d(gap), hold_current=held, hold_lift=lift,

@@ -24,9 +24,10 @@ from typing import Callable
 import numpy as np
 
 from ..config import Drive
-from ..model import eddy
+from ..model import eddy, flux
 from ..model.circuit import full_bridge, loop
 from ..model.eddy import EddyCoil
+from ..model.flux import FluxCoil
 from ..model.pwm import pwm_steady_state
 from ..model.rl import decay_integrals, decay_time, rise_integrals
 from ..model.thermal_cycle import chord, cycle_steady_state, heating, time_to_rise
@@ -109,10 +110,39 @@ def peak_heat(drive: Drive, lp, peak_time):
     """J that heats the coil in a peak full on from zero for ``peak_time`` s at the loop
     ``lp``: the copper's and an eddy term's core loss."""
     if isinstance(lp.inductance, EddyCoil):
-        _, s_pk, w_pk = eddy.rise_integrals(peak_time, 0.0, lp.v_on, lp.r_on, lp.inductance)
-        return lp.r_coil * s_pk + w_pk
+        e = lp.inductance
+        if drive.armature is None:
+            _, s_pk, w_pk = eddy.rise_integrals(peak_time, 0.0, lp.v_on, lp.r_on, e)
+            return lp.r_coil * s_pk + w_pk
+        return _moving_eddy_peak_heat(drive, lp, peak_time)
     _, s_pk = rise_integrals(peak_time, 0.0, lp.v_on, lp.r_on, peak_inductance(drive, lp))
     return lp.r_coil * s_pk
+
+
+def _moving_eddy_peak_heat(drive: Drive, lp, peak_time):
+    """:func:`peak_heat` with an eddy term and a moving armature, bounded from above.
+
+    Copper: the magnetising current rises no faster than through the open coil's branch
+    (:func:`peak_inductance`'s argument, with the loop's Thevenin pair), and the terminal
+    current ``(V + R_e i_m) / (R + R_e)`` rises with it, so the open branch's rise bounds
+    the copper's heat. Eddy loss: the branch voltage ``v_m = dpsi/dt = V_th - R_th i_m``
+    stays within ``[0, V_th]`` in the rise, so ``int v_m^2 / R_e dt <= V_th psi(T) / R_e``,
+    with the flux ``psi(T)`` at most ``V_th T`` and at most the seated coil's at ``V / R``.
+    """
+    e = lp.inductance
+    mag = e.magnetising
+    v, r = np.asarray(lp.v_on, float), np.asarray(lp.r_on, float)
+    if isinstance(mag, FluxCoil):   # the seated curve; the open one is coil.flux_current's
+        coil = drive.coil
+        opened = FluxCoil(flux.curve(coil.flux_current, coil.flux_linkage), mag.scale)
+        psi_top = np.asarray(mag.scale, float) * mag.curve.psi(v / r)
+    else:
+        opened = mag * drive.armature.inductance_open / drive.armature.inductance_closed
+        psi_top = mag * v / r
+    _, s_pk, _ = eddy.rise_integrals(peak_time, 0.0, v, r, EddyCoil(opened, e.resistance))
+    v_th, _ = eddy.thevenin(v, r, e.resistance)
+    w_pk = v_th * np.minimum(v_th * np.asarray(peak_time, float), psi_top) / e.resistance
+    return lp.r_coil * s_pk + w_pk
 
 
 def cycle_states(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,

@@ -30,7 +30,9 @@ class PullInBatch:
     ``impact_time``: first touch of the seat; ``dip_current``/``dip_time``: the current
     at that moment, where the motional back-EMF has pulled it down to its local
     minimum; ``hump_current`` is the largest current before it (``dip_depth`` =
-    hump - dip, 0 when the current never fell). ``seat_time``: at rest on the seat (after
+    hump - dip, 0 when the current never fell); with an eddy term those two are the
+    terminal current's (what the sense resistor sees), every other current the
+    magnetising current's. ``seat_time``: at rest on the seat (after
     any bounces). ``peak_end_current``: the current at the asked time (end of the peak
     phase). ``steps``: integrator steps taken.
     """
@@ -141,6 +143,8 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     dip_time = np.where(seated, impact_time, np.nan)
     dip_current = np.where(seated, dip_current, np.nan)
     hump = np.where(seated, np.maximum(peak[0], dip_current), np.nan)
+    if p.eddy is not None:   # the dip as the sense resistor sees it: the terminal current
+        dip_current, hump = p.terminal(dip_current, True), p.terminal(hump, True)
     # current at the end of the peak phase
     if want is None:
         peak_end = np.full(n, np.nan)

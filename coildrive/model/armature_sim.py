@@ -371,7 +371,8 @@ def _free_segment(run: _Run, t_end: float, on: bool, method: str, rtol: float, d
         first = math.isnan(run.impact_speed)
         if first:
             run.impact_speed = v
-            run.events["dip_current"] = pt.current(run.y[0], 0.0)
+            i_dip = pt.current(run.y[0], 0.0)
+            run.events["dip_current"] = i_dip if pt.eddy is None else pt.terminal(i_dip, on)
             run.mark("impact")
         rebound = pt.restitution * abs(run.y[2])
         if rebound > 0 and rebound >= REST_FRACTION * run.impact_speed and run.bounces < MAX_BOUNCES:

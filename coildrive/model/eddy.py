@@ -251,7 +251,9 @@ class EddyOrbit:
     highest magnetising current (A), whether the freewheel stops conducting in the
     off-time (``dcm``) and for how long it conducts (s), the terminal current's
     integrals over the on and off segments (A*s, A^2*s), the eddy energy of a period
-    (J) and the terminal current's lowest and highest values (A)."""
+    (J), the terminal current's lowest and highest values (A) and the magnetising
+    current's ``int i_m^2 dt`` over a period (A^2*s: the force a moving armature feels
+    goes with it)."""
 
     i_min: np.ndarray
     i_max: np.ndarray
@@ -264,6 +266,7 @@ class EddyOrbit:
     eddy_energy: np.ndarray
     terminal_min: np.ndarray
     terminal_max: np.ndarray
+    square_magnetising: np.ndarray
 
 
 def flat(e: EddyCoil, shape) -> EddyCoil:
@@ -358,7 +361,10 @@ def orbit(e: EddyCoil, t_on, t_off, v_on, r_on, r_off, v_off, iterations: int = 
     s_on = np.where(full, t_max * t_max * t_on, s_on)
     w_on = np.where(full, 0.0, w_on)
     t_min = np.where(full, t_max, t_min)
-    out = (a, b, ~ccm, cond, q_on, s_on, q_off, s_off, w_on + w_off + w_tail, t_min, t_max)
+    # the magnetising current's square over the period: on, conducting, then through R_e
+    s_mag = np.where(full, b * b * t_on, sm + np.where(cond > 0, sm_off, 0.0)
+                     + np.where(ccm, 0.0, s_tail))
+    out = (a, b, ~ccm, cond, q_on, s_on, q_off, s_off, w_on + w_off + w_tail, t_min, t_max, s_mag)
     return EddyOrbit(*(np.reshape(x, shape) for x in out))
 
 

@@ -50,8 +50,10 @@ class PwmSteadyState:
     and ``rms`` the terminal current's (the mean is the same: the branch voltage
     averages to zero over a period), ``ripple`` is the terminal current's highest less
     its lowest (``terminal_max`` - ``terminal_min``, what the sense resistor sees),
-    ``dcm`` says the freewheel stops conducting in the off-time, and ``eddy_energy`` is
-    the eddy resistance's energy per period (J). Those three are ``None`` without one.
+    ``dcm`` says the freewheel stops conducting in the off-time, ``eddy_energy`` is
+    the eddy resistance's energy per period (J) and ``magnetising_rms`` the magnetising
+    current's RMS (A: a moving armature's hold force goes with it). Those are ``None``
+    without one.
     """
 
     i_min: np.ndarray
@@ -69,6 +71,7 @@ class PwmSteadyState:
     terminal_min: np.ndarray | None = None
     terminal_max: np.ndarray | None = None
     eddy_energy: np.ndarray | None = None
+    magnetising_rms: np.ndarray | None = None
     charge_fast: np.ndarray | float = 0.0
     square_fast: np.ndarray | float = 0.0
 
@@ -217,7 +220,8 @@ def _eddy_steady_state(duty, frequency, v_on, r_on, r_off, v_off, coil: EddyCoil
                           conduction_off=o.conduction_off, period=period, charge_on=o.charge_on,
                           square_on=o.square_on, charge_off=o.charge_off, square_off=o.square_off,
                           terminal_min=o.terminal_min, terminal_max=o.terminal_max,
-                          eddy_energy=o.eddy_energy)
+                          eddy_energy=o.eddy_energy,
+                          magnetising_rms=np.sqrt(np.maximum(o.square_magnetising / period, 0.0)))
 
 
 def _points(inductance):
