@@ -152,6 +152,98 @@ def bus_floor(v_s, r_s, i_top) -> np.ndarray:
     return np.asarray(v_s, float) - np.asarray(r_s, float) * np.asarray(i_top, float)
 
 
+def state_from(t, b: Bus, i0, v0) -> tuple[np.ndarray, np.ndarray]:
+    """``(i A, v V)`` at ``t`` s after a moment at which the coil carries ``i0`` A and the
+    bus is at ``v0`` V, the switch on throughout (the same circuit from any start:
+    ``x(t) = x_ss + e^{At} (x0 - x_ss)``). A moving armature's coil, once it rests at a
+    stop, is this circuit again from the state it arrived with."""
+    a = _matrix(b.r_s, b.c, b.r, b.l)
+    di, dv = linear2.apply(t, a, b.l1, b.l2, (np.asarray(i0, float) - b.i_ss,
+                                               np.asarray(v0, float) - b.v_ss))
+    return b.i_ss + di, b.v_ss + dv
+
+
+def _slope_zeros(b: Bus, i0, v0, row: int) -> tuple[np.ndarray, np.ndarray]:
+    """The first two zeros (s, ``inf`` where none) of ``d/dt`` of the state's ``row``
+    (0: current, 1: bus) from ``(i0, v0)``: the first from :func:`linear2.first_zero` on
+    ``e^{At} A d``; a complex pair's next ``pi/omega`` later (a real pair has one at most)."""
+    a = _matrix(b.r_s, b.c, b.r, b.l)
+    d = (np.asarray(i0, float) - b.i_ss, np.asarray(v0, float) - b.v_ss)
+    ad = linear2.times(a, d)
+    aad = linear2.times(a, ad)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        t1 = linear2.first_zero(ad[row], aad[row], b.l1, b.l2)
+    t1 = np.where(np.isnan(t1), np.inf, t1)
+    w = np.abs(b.l1.imag)
+    with np.errstate(divide="ignore"):
+        t2 = np.where(w > 0, t1 + np.pi / np.where(w > 0, w, 1.0), np.inf)
+    return t1, t2, ad[row]
+
+
+def lowest_from(t_end, b: Bus, i0, v0) -> tuple[np.ndarray, np.ndarray]:
+    """``(lowest bus V, when s)`` over ``[0, t_end]`` s from ``(i0 A, v0 V)``, the switch
+    on: the bus is a sum of two exponentials (or a damped sinusoid) about ``v_ss``, so its
+    lowest is at an end or at a zero of ``dv/dt`` -- the first, or for a complex pair the
+    next one ``pi/omega`` later (later minima lie closer to ``v_ss``): exact, no sampling."""
+    t_end = np.broadcast_to(np.asarray(t_end, float), b.i_ss.shape)
+    t1, t2, _ = _slope_zeros(b, i0, v0, 1)
+    best_v = np.broadcast_to(np.asarray(v0, float), b.i_ss.shape).astype(float)
+    best_t = np.zeros_like(best_v)
+    for t in (t_end, t1, t2):
+        ok = np.isfinite(t) & (t <= t_end)
+        v = state_from(np.where(ok, t, 0.0), b, i0, v0)[1]
+        low = ok & (v < best_v)
+        best_v, best_t = np.where(low, v, best_v), np.where(low, t, best_t)
+    return best_v, best_t
+
+
+def time_to(i_target, b: Bus, i0, v0, t_max) -> np.ndarray:
+    """Time (s) from ``(i0 A, v0 V)``, the switch on, to the coil current's first upward
+    crossing of ``i_target`` A within ``t_max`` s (``inf`` where none): on the current's
+    first rising stretch (from 0, or from the first zero of ``di/dt`` when it starts
+    falling, to the next zero of ``di/dt``; real eigenvalues: for ever after the last),
+    later maxima being lower (damped); a bisection of the closed form there."""
+    target = np.broadcast_to(np.asarray(i_target, float), b.i_ss.shape)
+    t_max = np.broadcast_to(np.asarray(t_max, float), b.i_ss.shape)
+    i0 = np.broadcast_to(np.asarray(i0, float), b.i_ss.shape)
+    t1, t2, slope0 = _slope_zeros(b, i0, v0, 0)
+    rising = slope0 > 0
+    lo = np.where(rising, 0.0, t1)
+    hi = np.minimum(np.where(rising, t1, t2), t_max)
+    lo = np.where(np.isfinite(lo), lo, t_max)
+    hi = np.where(np.isfinite(hi), hi, t_max)
+    reached = (state_from(hi, b, i0, v0)[0] >= target) & (lo <= hi)
+    a = lo.copy()
+    c = hi.copy()
+    for _ in range(BISECTION_STEPS):
+        mid = 0.5 * (a + c)
+        up = state_from(mid, b, i0, v0)[0] >= target
+        a, c = np.where(up, a, mid), np.where(up, mid, c)
+    return np.where(i0 >= target, 0.0, np.where(reached, c, np.inf))
+
+
+def integrals_from(t, b: Bus, i0, v0, nodes: int = 64) -> tuple[np.ndarray, np.ndarray]:
+    """``(int i dt A*s, int i^2 dt A^2*s)`` over ``[0, t]`` s from ``(i0, v0)``, the switch
+    on: the charge exact (integrating ``x' = A (x - x_ss)``: ``int (x - x_ss) dt =
+    A^-1 (x(t) - x0)``), the square by ``nodes``-point Gauss-Legendre quadrature of the
+    closed form (numpy's ``leggauss``; the integrand is smooth, a few exponentials)."""
+    shape = np.broadcast_shapes(np.shape(t), b.i_ss.shape, np.shape(i0), np.shape(v0))
+    t, i0, v0 = (np.broadcast_to(np.asarray(a, float), shape) for a in (t, i0, v0))
+    a11, a12, a21, a22 = _matrix(b.r_s, b.c, b.r, b.l)
+    i1, v1 = state_from(t, b, i0, v0)
+    det = a11 * a22 - a12 * a21
+    charge = b.i_ss * t + (a22 * (i1 - i0) - a12 * (v1 - v0)) / det
+    x, w = np.polynomial.legendre.leggauss(nodes)
+    s = 0.5 * t[..., None] * (x + 1.0)
+    ii = state_from(s, _expand(b), i0[..., None], v0[..., None])[0]
+    return charge, 0.5 * t * np.sum(w * ii * ii, axis=-1)
+
+
+def _expand(b: Bus) -> Bus:
+    """``b`` with a trailing axis on every array (to evaluate many times per point)."""
+    return Bus(*(np.asarray(getattr(b, f))[..., None] for f in b.__dataclass_fields__))
+
+
 def clamp_hold_ripple_current(ripple) -> np.ndarray:
     """RMS (A) of the capacitor's current in a hold whose off-times decay through a clamp
     across the switch: the bus draws the coil current all the time (the switch in the
