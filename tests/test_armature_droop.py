@@ -214,3 +214,18 @@ def test_what_stays_refused(tmp_path, old, new, key):
     out = run_cli("design", str(path))
     lines = out.stderr.strip().splitlines()
     assert out.returncode == 2 and len(lines) == 1 and key in lines[0], out.stderr
+
+
+def test_high_side_node_follows_the_bus(tmp_path):
+    """A high-side switch's node in the peak is the drooping bus less the switch's drop
+    (Ohm's law, common practice); after the peak the stiff supply's."""
+    from coildrive.model.waveform import actuation
+
+    path = Path(_drive_file(tmp_path))
+    path.write_text(path.read_text().replace("relay-12bit-resistor.toml", "sourcing-hs-zener.toml"))
+    d = load_drive(path)
+    w = actuation(d, 10.8, 130.0, 0.03, 0.7, 25e3, 0.002)
+    peak = (w.time <= 0.03) & (w.switch_on == 1)
+    drop = w.bus_voltage[peak] - w.node_voltage[peak]
+    np.testing.assert_allclose(drop, w.current[peak] * d.switch.on_resistance, atol=1e-9)
+    assert w.bus_voltage[peak].min() < 10.8 - 0.1 and np.all(w.bus_voltage[w.time > 0.03] == 10.8)

@@ -614,9 +614,10 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
         times = [t for t, nm in tr.log if nm == name and t >= t_off]
         if times:
             events[name] = times[-1] if name == "open" else times[0]
+    rail = supply if tr.bus is None else tr.bus   # a high-side switch's node: from the bus
     return Waveform(tr.time, current, on, v_sw, sense, events, label, position=tr.position,
                     velocity=tr.velocity, bypass_on=bypass, bus_voltage=tr.bus,
-                    **(extra if bridge else node_columns(drive, supply, current, on, v_sw)))
+                    **(extra if bridge else node_columns(drive, rail, current, on, v_sw)))
 
 
 def _joined(head, rest, v_bus: float):
