@@ -99,7 +99,13 @@ def reference(p, rs: float, c: float, t_peak: float) -> dict:
     def seat(t, y):
         return y[1]
     seat.terminal, seat.direction = True, -1
-    s2 = solve_ivp(flight, (t_move, t_peak), [lam0, stroke, 0.0, u0], events=seat, **tol)
+
+    def back(t, y):   # back at the open stop (the force fell with the current)
+        return y[1] - stroke * (1 + 1e-9)
+    back.terminal, back.direction = True, 1
+    s2 = solve_ivp(flight, (t_move, t_peak), [lam0, stroke, 0.0, u0], events=[seat, back], **tol)
+    if len(s2.t_events[1]):
+        return dict(move=t_move, back=s2.t_events[1][0])
     t_seat, ys = s2.t_events[0][0], s2.y_events[0][0]
     s3 = solve_ivp(lambda t, y: [y[1] - r * cur(y[0], 0.0), du(y[0], 0.0, y[1])],
                    (t_seat, t_peak), [ys[0], ys[3]], **tol)
@@ -123,6 +129,63 @@ def test_pull_in_against_solve_ivp(bus):
     assert pin.seat_time[0] > stiff.seat_time[0], "the droop slows the pull-in"
     if bus[0] == "ringing":
         assert np.isfinite(p.bus(True).turn_time[0]), "a complex pair"
+
+
+#: A low-resistance coil on a ringing bus (R = 0.5 ohm, 0.5/2 mH, 3 V behind 1 ohm and 3 mF):
+#: the steady current 2 A is below the start current; the current's overshoot (its first
+#: maximum 3.6 A, before pi/omega) starts the plunger. With preload 0.5 N it seats; with
+#: 1 N the current falls back before it gets there and the plunger returns to the open stop.
+def _ringing(preload: float):
+    from coildrive.model.armature import ArmatureParams
+    from coildrive.model.magnet import fit_gap
+
+    lc, beta = fit_gap(0.5e-3, 2e-3, 0.002)
+    return ArmatureParams.make(v_on=3.0, r_on=0.5, r_off=5.0, v_off=0.8, l_closed=lc, beta=beta,
+                               stroke=0.002, mass=0.005, preload=preload, rate=100.0, load=0.0,
+                               damping=0.01, restitution=0.0, source_resistance=1.0, capacitance=3e-3)
+
+
+def test_the_overshoot_starts_and_seats_or_falls_back():
+    from coildrive.model.armature_runs import STALLED
+
+    p = _ringing(0.5)
+    assert p.start_current[0] > p.bus(True).i_ss[0]
+    pin = pull_in(p, peak_time=0.02)
+    ref = reference(p, 1.0, 3e-3, 0.02)   # scipy solve_ivp (Radau), written afresh
+    assert pin.status[0] == SEATED
+    assert pin.start_time[0] == pytest.approx(ref["move"], rel=1e-6)
+    assert pin.seat_time[0] == pytest.approx(ref["seat"], rel=1e-5)
+    assert pin.peak_end_current[0] == pytest.approx(ref["i_end"], rel=1e-5)
+    assert pin.lowest_bus[0] == pytest.approx(ref["low"], abs=1e-5 * 3.0)
+    p = _ringing(1.0)
+    pin = pull_in(p, peak_time=0.02)
+    ref = reference(p, 1.0, 3e-3, 0.02)
+    tr = simulate(p, [(0.02, True)])
+    back = [t for t, name in tr.log if name == "open"]
+    assert pin.status[0] == STALLED and pin.stall_gap[0] == p.stroke[0], "never back to the start current"
+    assert tr.state == "open" and back[0] == pytest.approx(ref["back"], rel=1e-5)
+
+
+def test_still_coil_rise_through_the_overshoot():
+    """The still coil's rise on a ringing bus: the current's first maximum comes before
+    pi/omega (the charged capacitor's zero in I(s)); a target between the current at
+    pi/omega and that maximum is reached -- scipy solve_ivp (Radau) of L di/dt = v - R i,
+    C dv/dt = (V_s - v)/R_s - i, written afresh."""
+    from scipy.integrate import solve_ivp
+
+    from coildrive.model import supply as bus_model
+
+    vs, rs, c, r, l = 3.0, 1.0, 3e-3, 0.5, 0.5e-3
+    b = bus_model.bus(vs, rs, c, r, l)
+    target = 2.3
+    assert bus_model.state(b.turn_time, b)[0][()] < target < bus_model.top_current(b)[()]
+
+    def hit(t, y):
+        return y[0] - target
+    hit.terminal, hit.direction = True, 1
+    sol = solve_ivp(lambda t, y: [(y[1] - r * y[0]) / l, ((vs - y[1]) / rs - y[0]) / c], (0, 0.01),
+                    [0.0, vs], method="Radau", rtol=1e-11, atol=1e-13, events=hit)
+    assert float(bus_model.rise_time(target, b)) == pytest.approx(sol.t_events[0][0], rel=1e-7)
 
 
 def test_stiff_source_gives_the_stiff_bus_armature():

@@ -86,7 +86,7 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     l_open = p.coil_open
     if droop:
         b_open = p.bus(True)
-        i_inf = b_open.i_ss
+        i_inf = bus_model.top_current(b_open)   # (the time bound's force: the most it drives)
         t_start = bus_model.rise_time(i_start, b_open)
         moves = np.isfinite(t_start)
         t_up = np.where(moves, t_start, 0.0)

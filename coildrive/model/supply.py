@@ -21,12 +21,17 @@ complex pair) by Putzer's formula ``e^{At} = e^{l1 t} I + f[l1, l2] (A - l1 I)``
 divided difference ``f = (e^{l1 t} - e^{l2 t})/(l1 - l2)`` (written with ``expm1`` so a
 double eigenvalue and a stiff one stay exact). No time stepping.
 
-The current from ``V_s`` is the step response of an all-pole second-order system
-(``I(s) = V_s / (s ((R + sL)(1 + s R_s C) + R_s))``), so ``i`` rises monotonically up to
-its first maximum at ``t = pi/omega`` (never, when the eigenvalues are real), and ``dv/dt``
-is zero at ``t = 0``: the bus falls monotonically to its first minimum, at the same
-``pi/omega`` (or for ever, when they are real). The rise time is a bisection of the closed
-form on that monotone stretch; the lowest bus over a peak of length ``T`` is
+From the charged capacitor the current is
+``I(s) = V_s (1 + s R_s C) / (s ((R + sL)(1 + s R_s C) + R_s))``: the numerator's zero
+(the capacitor's charge, ``di/dt = V_s/L`` at ``t = 0``) lets it rise faster than an
+all-pole response and overshoot -- with a complex pair its first maximum comes before
+``pi/omega``, and with real eigenvalues it may have one maximum above ``i_ss``. So the
+current rises monotonically up to the first zero of ``di/dt`` (from
+:func:`coildrive.model.linear2.first_zero`; for ever when there is none). The bus has
+``dv/dt = 0`` at ``t = 0`` (``dv/dt`` a multiple of ``e^{alpha t} sin(omega t)``, or of
+``e^{l1 t} - e^{l2 t}``): it falls monotonically to its first minimum at ``pi/omega``
+(or for ever, when the eigenvalues are real). The rise time is a bisection of the closed
+form on the current's monotone stretch; the lowest bus over a peak of length ``T`` is
 ``v(min(T, pi/omega))``.
 
 Limits: ``R_s -> 0`` is today's stiff bus (``V_s/R`` with ``tau = L/R``); ``C -> 0`` is a
@@ -66,8 +71,9 @@ class Bus:
 
     @property
     def turn_time(self) -> np.ndarray:
-        """``pi/omega`` s: the current's first maximum and the bus's first minimum (``inf``
-        when the eigenvalues are real: both monotone for ever)."""
+        """``pi/omega`` s: the bus's first minimum after switch-on (``inf`` when the
+        eigenvalues are real: it falls for ever). (The current's first maximum comes
+        earlier: :func:`rise_time`.)"""
         w = np.abs(self.l1.imag)
         with np.errstate(divide="ignore"):
             return np.where(w > 0, np.pi / np.where(w > 0, w, 1.0), np.inf)
@@ -94,13 +100,14 @@ def state(t, b: Bus) -> tuple[np.ndarray, np.ndarray]:
 def rise_time(i_target, b: Bus) -> np.ndarray:
     """Time (s) from switch-on to ``i_target`` A on the drooping bus (``inf`` where the
     current never gets there): a bisection of the closed form on its monotone stretch
-    ``[0, pi/omega]`` (for real eigenvalues, a bracket doubled from the slow time
-    constant until it holds the crossing)."""
+    up to its first maximum, the first zero of ``di/dt`` (where it has none: a bracket
+    doubled from the slow time constant until it holds the crossing)."""
     target = np.broadcast_to(np.asarray(i_target, float), b.i_ss.shape)
     slow = -1.0 / b.l1.real
-    hi = np.where(np.isfinite(b.turn_time), b.turn_time, slow)
-    reached = np.where(np.isfinite(b.turn_time), state(hi, b)[0] >= target, target < b.i_ss)
-    for _ in range(80):          # real eigenvalues: grow the bracket (converges: i -> i_ss)
+    top = _slope_zeros(b, 0.0, b.v_s, 0)[0]      # the current's first maximum (inf: none)
+    hi = np.where(np.isfinite(top), top, slow)
+    reached = np.where(np.isfinite(top), state(hi, b)[0] >= target, target < b.i_ss)
+    for _ in range(80):          # no maximum: grow the bracket (converges: i -> i_ss)
         short = reached & (state(hi, b)[0] < target)
         if not short.any():
             break
@@ -111,6 +118,14 @@ def rise_time(i_target, b: Bus) -> np.ndarray:
         up = state(mid, b)[0] >= target
         lo, hi = np.where(up, lo, mid), np.where(up, mid, hi)
     return np.where(reached & (target > 0), hi, np.where(target <= 0, 0.0, np.inf))
+
+
+def top_current(b: Bus) -> np.ndarray:
+    """The most current (A) the rise from switch-on reaches: at the current's first
+    maximum (the first zero of ``di/dt``; later maxima are lower), or ``i_ss`` where it
+    has none."""
+    top = _slope_zeros(b, 0.0, b.v_s, 0)[0]
+    return np.where(np.isfinite(top), state(np.where(np.isfinite(top), top, 0.0), b)[0], b.i_ss)
 
 
 def current(t, b: Bus) -> np.ndarray:
