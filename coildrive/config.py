@@ -1452,10 +1452,12 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     """What the drooping bus (``supply.source_resistance``) is modelled with: a linear coil,
     one switch (low or high side) or a full bridge (a voltage-mode, slow-decay, open-loop
     hold, on a supply that sinks: its fast decay into the bus is
-    :mod:`coildrive.model.bus_decay`), and no moving armature. Any hold (the droop is the peak's;
-    a regulated hold takes it out of the hold) and any freewheel path (a clamp's release,
-    which draws from the bus, is computed on the undrooped bus: the safe side). Anything
-    else is refused in one line rather than designed on a stiff bus."""
+    :mod:`coildrive.model.bus_decay`). Any hold (the droop is the peak's; a regulated hold
+    takes it out of the hold) and any freewheel path (a clamp's release, which draws from
+    the bus, is computed on the undrooped bus: the safe side). A moving armature: one
+    switch, a voltage-mode open-loop hold (the pull-in run carries the capacitor,
+    :mod:`coildrive.model.armature_runs`). Anything else is refused in one line rather
+    than designed on a stiff bus."""
     if not supply.droops:
         return
     why = None
@@ -1469,12 +1471,16 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
         key, why = "hold.mode", f"a full bridge with hold.mode = {hold.mode!r}"
     elif switch.topology == "full_bridge" and hold.regulation == "closed_loop":
         key, why = "hold.regulation", "a full bridge with a closed-loop hold"
-    elif armature is not None:
-        key, why = "armature", "a moving armature"
+    elif armature is not None and switch.topology == "full_bridge":
+        key, why = "armature", "a moving armature on a full bridge"
+    elif armature is not None and _open_loop_refusal(hold, None):
+        key, why = _open_loop_refusal(hold, None)
+        why += " and a moving armature"
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
-                         f"{why}: expected source_resistance left out, or a linear coil and no [armature] "
-                         "(a full bridge: a voltage-mode, slow-decay, open-loop hold, sink = true)")
+                         f"{why}: expected source_resistance left out, or a linear coil (a full bridge: "
+                         "a voltage-mode, slow-decay, open-loop hold, sink = true, no [armature]; an "
+                         "[armature]: one switch and a voltage-mode open-loop hold)")
 
 
 def _read_boost(s: "_Section") -> tuple:

@@ -182,23 +182,7 @@ def test_bad_input_one_line(tmp_path):
     assert "\n" not in line and "supply.capacitance" in line and "no-cap.toml" in line
     out = runner.invoke(app, ["design", _drive(tmp_path, "-1 ohm")])
     assert out.exit_code == 2 and "supply.source_resistance" in out.stderr.strip()
-    arm = tmp_path / "armature.toml"
-    arm.write_text(Path(_drive(tmp_path, "0.5 ohm")).read_text() + ARMATURE)
-    out = runner.invoke(app, ["design", str(arm)])
-    assert out.exit_code == 2, out.stdout
-    line = out.stderr.strip()
-    assert "\n" not in line and "armature" in line and "not modelled" in line
-
-
-ARMATURE = """
-[armature]
-inductance_open = "60 mH"
-inductance_closed = "120 mH"
-stroke = "1 mm"
-mass = "5 g"
-spring_preload = "0.5 N"
-spring_rate = "200 N/m"
-"""
+    # (a moving armature on the drooping bus: tests/test_armature_droop.py, its refusals too)
 
 #: The holds that regulate the current, as [hold] lines.
 REGULATED = {"current": 'mode = "current"\ncontrol = "off_time"', "closed_loop": 'regulation = "closed_loop"'}

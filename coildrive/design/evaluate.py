@@ -137,7 +137,12 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
                       lp_rel: Loop | None = None) -> ArmatureFigures:
     """The armature runs at the points: pull-in and hold on the hold's loop ``lp``, the
     release on ``lp_rel`` (the fast path of split decay; ``None`` or ``lp``: the same
-    path), with a late bypass decaying through ``lp`` first (:func:`late_release`)."""
+    path), with a late bypass decaying through ``lp`` first (:func:`late_release`).
+
+    On a drooping bus (``supply.source_resistance``) the pull-in runs on it (the bulk
+    capacitor a state of the run); the hold and the release on the stiff bus, as for the
+    still coil (the hold's droop is reported apart; the freewheel path draws nothing from
+    the bus, a clamp's release on the undrooped bus is the safe side)."""
     import dataclasses
 
     from ..model.armature import hold_force_current, params_from_loop
@@ -146,7 +151,11 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
     shape = np.shape(lp.v_on)
     fields = ("v_on", "r_on", "r_off", "v_off", "inductance", "r_coil", "supply")
     flat = Loop(*(np.ravel(getattr(lp, f)) for f in fields))
-    p = params_from_loop(drive.armature, flat, np.ravel(np.broadcast_to(l_factor, shape)), drive.coil.eddy_resistance)
+    s = drive.supply
+    bus = (s.source_resistance, s.capacitance) if s.droops else (0.0, 0.0)
+    p_pull = params_from_loop(drive.armature, flat, np.ravel(np.broadcast_to(l_factor, shape)),
+                              drive.coil.eddy_resistance, bus)
+    p = p_pull.stiff_bus() if s.droops else p_pull
     p_rel = p
     if lp_rel is not None and lp_rel is not lp:
         flat_rel = Loop(*(np.ravel(np.broadcast_to(getattr(lp_rel, f), shape)) for f in fields))
@@ -154,21 +163,21 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
     lag = max(-drive.freewheel.bypass_lead, 0.0) if p_rel is not p else 0.0
     want = np.ravel(np.broadcast_to(peak_time, shape))
     pin = rel = None
-    if reuse is not None and p.same_points(reuse.params):
+    if reuse is not None and p_pull.same_points(reuse.params):
         # Same points and coil temperatures: the runs do not depend on the peak length.
-        i_peak = peak_current_closed_form(p, reuse.pull_in, want)
+        i_peak = peak_current_closed_form(p_pull, reuse.pull_in, want)
         if i_peak is not None and np.array_equal(np.ravel(ss.i_max), reuse.release_from):
             pin = dataclasses.replace(reuse.pull_in, peak_end_current=i_peak)
             rel = reuse.release
     if pin is None:
-        pin = pull_in(p, peak_time=want)
+        pin = pull_in(p_pull, peak_time=want)
         rel = (late_release(p, p_rel, np.ravel(ss.i_max), lag) if lag > 0 else
                release(p_rel, np.ravel(ss.i_max)))
     through, gap = p.stroke_current()
     # the force goes with the magnetising current (an eddy term's terminal RMS is higher)
     rms = ss.rms if ss.magnetising_rms is None else ss.magnetising_rms
     held, lift = hold_force_current(p, np.ravel(ss.i_min), np.ravel(rms), np.ravel(ss.period))
-    return ArmatureFigures(params=p, pull_in=pin, release=rel, start_current=p.start_current,
+    return ArmatureFigures(params=p_pull, pull_in=pin, release=rel, start_current=p.start_current,
                            stay_current=p.stay_current, stroke_current=np.atleast_1d(through),
                            stroke_gap=np.atleast_1d(gap), hold_current=held, hold_lift=lift,
                            release_from=np.ravel(ss.i_max).copy())

@@ -79,17 +79,28 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
     peak's, or the hold's top if higher), and without split decay the hold's off-times draw
     from the bus too (the hold's bus sits ``R_s`` x the mean low; the capacitor carries the
     coil's ripple). ``bridge_bus``: a full bridge's highest bus
-    (:func:`coildrive.design.bridge_bus.bridge_release`)."""
+    (:func:`coildrive.design.bridge_bus.bridge_release`).
+
+    With a moving armature the lowest bus is the pull-in run's
+    (:func:`coildrive.model.armature_runs.pull_in` on the drooping bus, to the end of the
+    same longest peak) and the current at the end of the peak the run's too."""
     s = drive.supply
     if not s.droops:
         return None
     lp = res.loop
-    b = bus_at(drive, lp, lp.inductance)
     peak = np.broadcast_to(peak_time, lp.v_on.shape)
-    v_low, when = bus_model.lowest_bus(peak, b)
+    if res.armature is not None:
+        pin = res.armature.pull_in
+        v_low = np.asarray(pin.lowest_bus, float).reshape(lp.v_on.shape)
+        when = np.asarray(pin.lowest_bus_time, float).reshape(lp.v_on.shape)
+        i_end = np.asarray(res.peak_end_current, float)
+    else:
+        b = bus_at(drive, lp, lp.inductance)
+        v_low, when = bus_model.lowest_bus(peak, b)
+        i_end = bus_model.current(peak, b)
     clamp = through_clamp(drive)
     if clamp:
-        i_top = np.maximum(bus_model.current(peak, b), res.hold.i_max)
+        i_top = np.maximum(i_end, res.hold.i_max)
         floor = bus_model.bus_floor(lp.v_on, s.source_resistance, i_top)
         later = floor < v_low
         v_low, when = np.where(later, floor, v_low), np.where(later, peak, when)

@@ -96,6 +96,11 @@ class ArmatureParams:
     load: np.ndarray
     damping: np.ndarray
     restitution: np.ndarray
+    #: The drooping bus (:mod:`coildrive.model.supply`): the source resistance ohm and the
+    #: bulk capacitance F behind the switch; ``v_on`` is then the source's voltage. 0 (the
+    #: default): a stiff bus at ``v_on``.
+    source_resistance: np.ndarray
+    capacitance: np.ndarray
     #: A saturating coil's open and seated curves (:mod:`coildrive.model.gap_curves`);
     #: ``None``: the linear ``L(x)``. With curves ``l_closed`` and ``beta`` are the
     #: small-signal values (time scales and error control only).
@@ -110,7 +115,9 @@ class ArmatureParams:
     @staticmethod
     def make(curves: "GapCurves | None" = None, eddy=None, **values) -> "ArmatureParams":
         """Broadcast keyword values (floats or arrays) to 1-D arrays of one length
-        (``eddy``: the eddy resistance in ohm, or ``None``/0 for none)."""
+        (``eddy``: the eddy resistance in ohm, or ``None``/0 for none;
+        ``source_resistance`` and ``capacitance`` default to 0: a stiff bus)."""
+        values = {"source_resistance": 0.0, "capacitance": 0.0, **values}
         names = [f.name for f in ArmatureParams.__dataclass_fields__.values()
                  if f.name not in ("curves", "eddy")]
         unknown = set(values) - set(names)
@@ -147,6 +154,24 @@ class ArmatureParams:
         return ArmatureParams(**{n: np.atleast_1d(getattr(self, n)[k]) for n in self.arrays},
                               curves=None if self.curves is None else self.curves[k],
                               eddy=None if self.eddy is None else np.atleast_1d(self.eddy[k]))
+
+    @property
+    def droops(self) -> bool:
+        """True when the bus droops behind a source resistance (then the state carries the
+        capacitor's voltage, a sixth row, while the switch is on it feeds the coil)."""
+        return bool(np.any(self.source_resistance > 0))
+
+    def stiff_bus(self) -> "ArmatureParams":
+        """These points on a stiff bus at ``v_on`` (the hold's treatment of the droop)."""
+        zero = np.zeros_like(self.v_on)
+        return dataclasses.replace(self, source_resistance=zero, capacitance=zero)
+
+    def bus(self, open_: bool):
+        """The drooping bus's linear circuit (:func:`coildrive.model.supply.bus`) with the
+        armature resting on the open stop (``open_``) or on the seat."""
+        from .supply import bus
+        return bus(self.v_on, self.source_resistance, self.capacitance, self.r_on,
+                   self.l_open if open_ else self.l_closed)
 
     @property
     def l_open(self) -> np.ndarray:
@@ -259,21 +284,24 @@ class ArmatureParams:
         return np.stack([self.l_closed * i_ref, self.stroke, v_ref])
 
 
-def params_from_loop(arm, lp, l_factor, eddy_resistance: float = 0.0) -> ArmatureParams:
+def params_from_loop(arm, lp, l_factor, eddy_resistance: float = 0.0,
+                     bus: tuple[float, float] = (0.0, 0.0)) -> ArmatureParams:
     """:class:`ArmatureParams` at operating points from a drive's ``[armature]`` (an
     :class:`~coildrive.config.Armature`) and a :class:`~coildrive.model.circuit.Loop`.
 
     ``l_factor`` (the inductance tolerance) scales both measured inductances, so the
     equivalent gap stays and the force constant scales with it. ``eddy_resistance``
     (ohm, ``[coil] eddy_resistance``; 0 = none): the eddy term across the magnetising
-    branch (:mod:`coildrive.model.eddy`).
+    branch (:mod:`coildrive.model.eddy`). ``bus``: the supply's ``(source_resistance ohm,
+    capacitance F)``, ``(0, 0)`` for a stiff bus.
     """
     l_closed, beta = fit_gap(arm.inductance_open, arm.inductance_closed, arm.stroke)
     p = ArmatureParams.make(
         v_on=lp.v_on, r_on=lp.r_on, r_off=lp.r_off, v_off=lp.v_off,
         l_closed=l_closed * np.asarray(l_factor, float), beta=beta, stroke=arm.stroke,
         mass=arm.mass, preload=arm.spring_preload, rate=arm.spring_rate, load=arm.load_force,
-        damping=arm.damping, restitution=arm.restitution, eddy=eddy_resistance or None)
+        damping=arm.damping, restitution=arm.restitution, eddy=eddy_resistance or None,
+        source_resistance=bus[0], capacitance=bus[1])
     if not arm.open_current:
         return p
     from .flux import curve

@@ -59,7 +59,12 @@ DP_E = DP_B - DP_B4
 
 # --------------------------------------------------------------------------- integrator
 class _Rhs:
-    """Right-hand side ``dy/dt`` for state rows (lambda, x, v, q, sq), vectorised."""
+    """Right-hand side ``dy/dt`` for state rows (lambda, x, v, q, sq), vectorised; on a
+    drooping bus (``p.droops``) a sixth row, the capacitor's voltage ``u`` V::
+
+        dlambda/dt = u - R_on i                      switch on (the bus feeds the coil)
+        C du/dt    = (V_s - u)/R_s - i [switch on]   (the freewheel path draws nothing)
+    """
 
     def __init__(self, p: ArmatureParams, on: np.ndarray, live: np.ndarray):
         self.curves = p.curves
@@ -87,9 +92,17 @@ class _Rhs:
         self.km = p.rate / p.mass
         self.cm = p.beta * self.inv_lc / (2.0 * p.mass)
         self.dm = p.damping / p.mass
+        self.droop = p.droops
+        if self.droop:
+            rc = p.source_resistance * p.capacitance
+            self.on = on.astype(float)
+            self.v_s = p.v_on
+            self.g_s = np.where(rc > 0, 1.0 / np.where(rc > 0, rc, 1.0), 0.0)
+            self.inv_c = np.where(p.capacitance > 0, 1.0 / np.where(p.capacitance > 0, p.capacitance, 1.0), 0.0)
 
     def jacobian(self, y: np.ndarray) -> np.ndarray:
-        """``d(dy/dt)/dy`` per point, shape (N, 5, 5) (rows and columns lambda, x, v, q, sq)."""
+        """``d(dy/dt)/dy`` per point, shape (N, m, m) (rows and columns lambda, x, v, q, sq
+        and, on a drooping bus, u)."""
         lam, x = y[0], y[1]
         n = lam.size
         if self.curves is None:
@@ -100,7 +113,8 @@ class _Rhs:
         else:   # the saturating coil's curves (model.gap_curves): the same law, tabulated
             i, di_dl, di_dx, _, df = self.curves.state(lam, x)
             df_dl = df * self.inv_m
-        jac = np.zeros((n, 5, 5))
+        m = y.shape[0]
+        jac = np.zeros((n, m, m))
         jac[:, 0, 0] = -self.live * self.drive_r * di_dl
         jac[:, 0, 1] = -self.live * self.drive_r * di_dx
         jac[:, 1, 2] = 1.0
@@ -114,6 +128,11 @@ class _Rhs:
         jac[:, 3, 1] = di_dx
         jac[:, 4, 0] = 2.0 * i * di_dl
         jac[:, 4, 1] = 2.0 * i * di_dx
+        if self.droop:
+            jac[:, 0, 5] = self.live * self.on
+            jac[:, 5, 0] = -self.on * self.inv_c * di_dl
+            jac[:, 5, 1] = -self.on * self.inv_c * di_dx
+            jac[:, 5, 5] = -self.g_s
         return jac
 
     def terminal_rate(self, y, dy):
@@ -142,7 +161,13 @@ class _Rhs:
             i, _, _, force, _ = self.curves.state(lam, x)
             pull = force * self.inv_m
         out = np.empty_like(y)
-        out[0] = self.live * (self.drive_v - self.drive_r * i)
+        if self.droop:
+            u = y[5]
+            drive_v = np.where(self.on > 0, u, self.drive_v)
+            out[0] = self.live * (drive_v - self.drive_r * i)
+            out[5] = self.g_s * (self.v_s - u) - self.on * self.inv_c * i
+        else:
+            out[0] = self.live * (self.drive_v - self.drive_r * i)
         out[1] = v
         out[2] = self.f0 - self.km * x - pull - self.dm * v
         if self.t1 is not None:
@@ -184,7 +209,7 @@ _ROS_E32 = 6.0 + np.sqrt(2.0)
 def _rosenbrock_step(rhs: _Rhs, y: np.ndarray, f0: np.ndarray, h: np.ndarray):
     """One step of the Rosenbrock pair of order 2(3) for an autonomous system (Shampine &
     Reichelt 1997): returns the new state, its derivative and the error estimate."""
-    w = np.eye(5)[None, :, :] - (h * _ROS_D)[:, None, None] * rhs.jacobian(y)
+    w = np.eye(y.shape[0])[None, :, :] - (h * _ROS_D)[:, None, None] * rhs.jacobian(y)
 
     def solve(b):
         return np.linalg.solve(w, b.T[:, :, None])[:, :, 0].T
@@ -205,10 +230,16 @@ STIFF_RATIO = 200.0
 
 
 def is_stiff(p: ArmatureParams, force) -> np.ndarray:
-    """Per point: is the damped motion under ``force`` N stiff for an explicit method?"""
+    """Per point: is the damped motion under ``force`` N stiff for an explicit method? On a
+    drooping bus also: is the bus's fast eigenvalue (:mod:`coildrive.model.supply`; a
+    small ``R_s C``) that fast against the motion?"""
     f = np.maximum(np.asarray(force, float), 1e-300)
     mech = np.sqrt(2.0 * p.mass * p.stroke / f) + p.damping * p.stroke / f
-    return p.damping / p.mass * mech > STIFF_RATIO
+    stiff = p.damping / p.mass * mech > STIFF_RATIO
+    if p.droops:
+        fast = np.abs(p.bus(True).l2.real)
+        stiff = stiff | (fast * mech > STIFF_RATIO)
+    return stiff
 
 
 def fly_mixed(p: ArmatureParams, t, y, t_end, active, on, live, stiff: np.ndarray, rtol: float,
@@ -244,7 +275,8 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
         on: np.ndarray, live: np.ndarray, rtol: float = 1e-7, record: bool = False,
         query: np.ndarray | None = None, query_y: np.ndarray | None = None,
         track: np.ndarray | None = None, peak: np.ndarray | None = None,
-        max_steps: int = MAX_STEPS, stiff: bool = False) -> Flight:
+        max_steps: int = MAX_STEPS, stiff: bool = False, low: np.ndarray | None = None,
+        low_until: np.ndarray | None = None) -> Flight:
     """Integrate the free armature of every ``active`` point from ``t`` until a stop, the
     current reaching zero (switch off), or ``t_end``.
 
@@ -264,13 +296,17 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
     a step passes them
     track, peak : where ``track``, keep the running largest current and its time in
     ``peak`` (2 x N: A, s)
+    low, low_until : on a drooping bus, keep the running lowest capacitor voltage and its
+    time in ``low`` (2 x N: V, s) up to ``low_until`` s (per point): at the accepted
+    steps' ends and, inside a step where ``du/dt`` turns from falling to rising, at the
+    minimum of its cubic Hermite interpolant
 
     A batch of one point goes through :func:`fly_point` (Python floats: numpy's per-call
     overhead on 1-element arrays would dominate; same algorithm and results), unless
     :data:`SINGLE_POINT_SCALAR` is False or the coil has curves (``p.curves``: their
     tabulated law is numpy's); its ``path_*`` then hold the accepted steps only.
     """
-    if t.size == 1 and SINGLE_POINT_SCALAR and p.curves is None and p.eddy is None:
+    if t.size == 1 and SINGLE_POINT_SCALAR and p.curves is None and p.eddy is None and not p.droops:
         return _fly_single(p, t, y, t_end, active, on, live, rtol, record, query, query_y,
                            track, peak, max_steps, stiff)
     n = t.size
@@ -280,7 +316,11 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
     end = np.where(active, RUNNING, BOUND)
     steps = np.zeros(n, int)
     rhs = _Rhs(p, on, live)
+    rows = [0, 1, 2]                 # the rows under error control
     scale = rtol * p.reference_scales()
+    if p.droops:
+        rows.append(5)
+        scale = np.concatenate([scale, rtol * p.v_on[None, :]])
     h = np.maximum(1e-4 * (t_end - np.where(active, t, 0.0)), 1e-15)
     k1 = rhs(y)
     path_t = [t.copy()] if record else None
@@ -303,7 +343,7 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
             k7 = rhs(y_new)
             ks.append(k7)
             err = h * sum(e * k for e, k in zip(DP_E, ks) if e)
-        norm = np.max(np.abs(err[:3]) / (scale + rtol * np.abs(y[:3])), axis=0)
+        norm = np.max(np.abs(err[rows]) / (scale + rtol * np.abs(y[rows])), axis=0)
         ok = active & (norm <= 1.0)
         steps += active
         # stop events inside accepted steps
@@ -349,6 +389,8 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
                 up = tr & (i_new > peak[0])
                 peak[0] = np.where(up, i_new, peak[0])
                 peak[1] = np.where(up, t_new, peak[1])
+        if low is not None:
+            _track_low(low, low_until, ok, t, y, y_full, y_new, k1, k7, h, theta)
         # accept
         t = np.where(ok, t_new, t)
         y = np.where(ok, y_new, y)
@@ -371,6 +413,41 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
         active = active & ~tiny
     end = np.where(active, BOUND, end)
     return Flight(t, y, end, steps, path_t, path_y)
+
+
+def _track_low(low, until, ok, t, y, y_full, y_new, k1, k7, h, theta) -> None:
+    """Update the running lowest capacitor voltage ``low`` (2 x N: V, s) with an accepted
+    step from ``t`` (state ``y``, slope ``k1``) over ``h`` (``y_full``, slope ``k7`` at its
+    end), kept up to ``t + theta h`` (``y_new``: cut at an event when ``theta < 1``) and up
+    to ``until`` s: the kept end, and where ``du/dt`` turns from negative to positive in
+    the step, the minimum of the step's Hermite cubic (its slope, a quadratic in the
+    step fraction, bisected)."""
+    t_new = t + theta * h
+    up = ok & (t_new <= until) & (y_new[5] < low[0])
+    low[0] = np.where(up, y_new[5], low[0])
+    low[1] = np.where(up, t_new, low[1])
+    turn = ok & (k1[5] < 0.0) & (k7[5] > 0.0)
+    if not turn.any():
+        return
+    lo, hi = np.zeros_like(t), np.ones_like(t)
+    for _ in range(50):
+        mid = 0.5 * (lo + hi)
+        falling = _hermite_slope(y[5], y_full[5], k1[5], k7[5], h, mid) < 0.0
+        lo, hi = np.where(falling, mid, lo), np.where(falling, hi, mid)
+    th = 0.5 * (lo + hi)
+    inside = turn & (th <= theta) & (t + th * h <= until)
+    u_min = _hermite(y[5], y_full[5], k1[5], k7[5], h, th)
+    up = inside & (u_min < low[0])
+    low[0] = np.where(up, u_min, low[0])
+    low[1] = np.where(up, t + th * h, low[1])
+
+
+def _hermite_slope(y0, y1, d0, d1, h, theta):
+    """``d/dt`` of the cubic Hermite interpolant at fraction ``theta`` of a step ``h``."""
+    t2 = theta * theta
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return ((6 * t2 - 6 * theta) * (y0 - y1) / np.where(h > 0, h, 1.0)
+                + (3 * t2 - 4 * theta + 1) * d0 + (3 * t2 - 2 * theta) * d1)
 
 
 # --------------------------------------------------------------------------- one point

@@ -14,10 +14,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .armature import (BOUND, MAX_BOUNCES, NO_START, NOT_OPEN, OPEN, OPENED, REST_FRACTION, SEAT,
+from .armature import (BOUND, BOUND_FACTOR, MAX_BOUNCES, NO_START, NOT_OPEN, OPEN, OPENED, REST_FRACTION, SEAT,
                        SEATED, STALLED, ZERO, ArmatureParams, time_bound)
 from .armature_flight import fly_mixed, is_stiff
 from .rl import decay_current, decay_integrals, decay_time, rise_current, rise_integrals, rise_time
+from . import supply as bus_model
 
 # --------------------------------------------------------------------------- pull-in
 @dataclass(frozen=True)
@@ -35,6 +36,11 @@ class PullInBatch:
     magnetising current's. ``seat_time``: at rest on the seat (after
     any bounces). ``peak_end_current``: the current at the asked time (end of the peak
     phase). ``steps``: integrator steps taken.
+
+    On a drooping bus (``p.droops``; else ``None``): ``lowest_bus`` V and
+    ``lowest_bus_time`` s, the capacitor's lowest over ``[0, peak_time]`` (over the run
+    without a ``peak_time``), and ``seat_bus`` V, the capacitor when the armature comes
+    to rest on the seat.
     """
 
     status: np.ndarray
@@ -53,6 +59,9 @@ class PullInBatch:
     peak_end_current: np.ndarray
     bound: np.ndarray
     steps: np.ndarray
+    lowest_bus: np.ndarray | None = None
+    lowest_bus_time: np.ndarray | None = None
+    seat_bus: np.ndarray | None = None
 
     @property
     def dip_depth(self) -> np.ndarray:
@@ -66,20 +75,39 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     on the open stop while the force is below spring preload + load); the motion is
     integrated by :func:`fly`. ``peak_time`` (s, scalar or per point) asks for the
     current at that time.
+
+    On a drooping bus (``p.droops``) the bulk capacitor's voltage is a sixth state: the
+    rise before motion and the seated coil are the closed form of
+    :mod:`coildrive.model.supply` (open, then seated inductance, from the state they
+    start with), the flight integrates it with the motion; the lowest bus up to
+    ``peak_time`` is tracked through all three.
     """
     n = len(p)
-    i_inf = p.v_on / p.r_on
+    droop = p.droops
     i_start = p.start_current
-    moves = i_inf > i_start
     l_open = p.coil_open
-    t_start = np.where(moves, rise_time(np.where(moves, i_start, 0.0), 0.0, p.v_on, p.r_on, l_open), np.inf)
-    q0, s0 = rise_integrals(np.where(moves, t_start, 0.0), 0.0, p.v_on, p.r_on, l_open)
+    if droop:
+        b_open = p.bus(True)
+        i_inf = bus_model.top_current(b_open)   # (the time bound's force: the most it drives)
+        t_start = bus_model.rise_time(i_start, b_open)
+        moves = np.isfinite(t_start)
+        t_up = np.where(moves, t_start, 0.0)
+        q0, s0 = bus_model.integrals_from(t_up, b_open, 0.0, p.v_on)
+        u_start = bus_model.state(t_up, b_open)[1]
+    else:
+        i_inf = p.v_on / p.r_on
+        moves = i_inf > i_start
+        t_start = np.where(moves, rise_time(np.where(moves, i_start, 0.0), 0.0, p.v_on, p.r_on, l_open), np.inf)
+        q0, s0 = rise_integrals(np.where(moves, t_start, 0.0), 0.0, p.v_on, p.r_on, l_open)
     lam_start = p.flux_open(i_start)
     lam_stay = p.flux_closed(p.stay_current)
-    y = np.stack([np.where(moves, lam_start * (1.0 + 1e-12), 0.0), p.stroke.copy(), np.zeros(n), q0, s0])
+    rows = [np.where(moves, lam_start * (1.0 + 1e-12), 0.0), p.stroke.copy(), np.zeros(n), q0, s0]
+    y = np.stack(rows + ([u_start] if droop else []))
     t = np.where(moves, t_start, 0.0)
     f_inf = p.closing_force(p.flux_open(i_inf)) - p.opening_force(p.stroke)
     bound = np.where(moves, time_bound(t_start, p.l_closed, p.r_on, p.mass, p.stroke, p.damping, f_inf), np.inf)
+    if droop:   # the bus's own time scale too
+        bound = bound + BOUND_FACTOR * p.source_resistance * p.capacitance
     status = np.where(moves, -1, NO_START)
     nan = np.full(n, np.nan)
     impact_time, impact_speed, dip_current = nan.copy(), nan.copy(), nan.copy()
@@ -90,7 +118,18 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     steps = np.zeros(n, int)
     peak = np.stack([np.where(moves, i_start, 0.0), np.where(moves, t_start, 0.0)])
     want = None if peak_time is None else np.broadcast_to(np.asarray(peak_time, float), (n,)).copy()
-    query_y = np.full((5, n), np.nan)
+    query_y = np.full((y.shape[0], n), np.nan)
+    low = low_until = None
+    if droop:
+        low_until = np.full(n, np.inf) if want is None else want
+        early = ~moves | (low_until < t_start)   # the peak ends in the rise before motion
+        # (a coil that never moves, with no peak end: the bus's first minimum, or for ever
+        # towards v_ss when it has none)
+        ever = np.isfinite(low_until) | np.isfinite(b_open.turn_time)
+        v_early, t_early = bus_model.lowest_bus(np.where(early & ever, low_until, 0.0), b_open)
+        v_early, t_early = np.where(ever, v_early, b_open.v_ss), np.where(ever, t_early, np.inf)
+        low = np.stack([np.where(early, v_early, u_start), np.where(early, t_early, t_start)])
+    seat_bus = np.full(n, np.nan) if droop else None
     active = moves.copy()
     on = np.ones(n, bool)
     live = np.ones(n, bool)
@@ -99,7 +138,7 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
         if not active.any():
             break
         fl = fly_mixed(p, t, y, bound, active, on, live, stiff, rtol, query=want, query_y=query_y,
-                 track=active & np.isnan(impact_time), peak=peak)
+                 track=active & np.isnan(impact_time), peak=peak, low=low, low_until=low_until)
         steps += fl.steps
         t = np.where(active, fl.t, t)
         y = np.where(active, fl.y, y)
@@ -118,6 +157,8 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
         status = np.where(holds, SEATED, status)
         seat_time = np.where(holds, t, seat_time)
         seat_current = np.where(holds, p.current(lam, 0.0), seat_current)
+        if droop:
+            seat_bus = np.where(holds, y[5], seat_bus)
         active = active & ~holds
         # At the open stop with the force still too weak: rest there until the current
         # (closed form, open inductance) reaches the start current again.
@@ -125,7 +166,30 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
         if opn.any():
             y[2] = np.where(opn, 0.0, y[2])
             stuck = opn & (lam <= lam_start)
-            if stuck.any():
+            if stuck.any() and droop:
+                i_now = p.current(lam, p.stroke)
+                u_now = y[5]
+                dt = bus_model.time_to(i_start, b_open, np.minimum(i_now, i_start), u_now,
+                                       np.maximum(bound - t, 0.0))
+                dt = np.where(stuck & np.isfinite(dt), dt, np.where(stuck, np.maximum(bound - t, 0.0), 0.0))
+                dq, ds = bus_model.integrals_from(dt, b_open, i_now, u_now)
+                v_low, t_low = bus_model.lowest_from(np.minimum(dt, np.maximum(low_until - t, 0.0)),
+                                                     b_open, i_now, u_now)
+                lower = stuck & (t <= low_until) & (v_low < low[0])
+                low[0] = np.where(lower, v_low, low[0])
+                low[1] = np.where(lower, t + t_low, low[1])
+                i_new, u_new = bus_model.state_from(dt, b_open, i_now, u_now)
+                reach = stuck & (i_new >= i_start * (1.0 - 1e-9))
+                # where the current never gets back to the start current: stalled open
+                status = np.where(stuck & ~reach, STALLED, status)
+                stall_gap = np.where(stuck & ~reach, p.stroke, stall_gap)
+                active = active & ~(stuck & ~reach)
+                t = np.where(stuck, t + dt, t)
+                y[0] = np.where(reach, lam_start * (1.0 + 1e-12), np.where(stuck, p.flux_open(i_new), y[0]))
+                y[3] = np.where(stuck, y[3] + dq, y[3])
+                y[4] = np.where(stuck, y[4] + ds, y[4])
+                y[5] = np.where(stuck, u_new, y[5])
+            elif stuck.any():
                 i_now = p.current(lam, p.stroke)
                 dt = rise_time(i_start, np.minimum(i_now, i_start), p.v_on, p.r_on, l_open)
                 dq, ds = rise_integrals(np.where(stuck, dt, 0.0), i_now, p.v_on, p.r_on, l_open)
@@ -148,6 +212,9 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     # current at the end of the peak phase
     if want is None:
         peak_end = np.full(n, np.nan)
+    elif droop:
+        peak_end, low = _droop_peak_end(p, want, t_start, moves, seated, seat_time, seat_current,
+                                        seat_bus, query_y, low, b_open)
     else:
         before = want < np.where(moves, t_start, np.inf)
         after = seated & (want >= seat_time)
@@ -162,7 +229,33 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
                        dip_current=dip_current, dip_time=dip_time, hump_current=hump,
                        hump_time=np.where(seated, peak[1], np.nan), seat_time=seat_time,
                        seat_current=seat_current, bounces=bounces, stall_gap=stall_gap,
-                       peak_end_current=peak_end, bound=bound, steps=steps)
+                       peak_end_current=peak_end, bound=bound, steps=steps,
+                       lowest_bus=None if low is None else low[0],
+                       lowest_bus_time=None if low is None else low[1], seat_bus=seat_bus)
+
+
+def _droop_peak_end(p: ArmatureParams, want, t_start, moves, seated, seat_time, seat_current,
+                    seat_bus, query_y, low, b_open):
+    """On a drooping bus: the current (A) at ``want`` s, and the lowest bus (2 x N: V, s)
+    over ``[0, want]`` completed -- before the motion the open coil's closed form, during
+    it the flight's state there (``query_y``), on the seat the seated coil's closed form
+    from the seat's state (:func:`coildrive.model.supply.lowest_from`)."""
+    before = want < np.where(moves, t_start, np.inf)
+    after = seated & (want >= seat_time)
+    during = ~before & ~after
+    b_seat = p.bus(False)
+    dt = np.where(after, want - seat_time, 0.0)
+    i0 = np.where(after, seat_current, 0.0)
+    u0 = np.where(after, seat_bus, p.v_on)
+    i_after = bus_model.state_from(dt, b_seat, i0, u0)[0]
+    v_after, t_after = bus_model.lowest_from(dt, b_seat, i0, u0)
+    lower = after & (v_after < low[0])
+    low = np.stack([np.where(lower, v_after, low[0]), np.where(lower, seat_time + t_after, low[1])])
+    got = during & np.isfinite(query_y[5]) & (query_y[5] < low[0])
+    low = np.stack([np.where(got, query_y[5], low[0]), np.where(got, want, low[1])])
+    i_end = np.where(before, bus_model.current(np.where(before, want, 0.0), b_open),
+                     np.where(after, i_after, p.current(query_y[0], query_y[1])))
+    return i_end, low
 
 
 def peak_current_closed_form(p: ArmatureParams, pin: PullInBatch, peak_time):
@@ -172,6 +265,8 @@ def peak_current_closed_form(p: ArmatureParams, pin: PullInBatch, peak_time):
     Before the armature moves it is the open-inductance rise; once it rests on the seat,
     the closed-inductance rise from the seat current.
     """
+    if p.droops:   # the lowest bus depends on the peak's length too: run again
+        return None
     want = np.broadcast_to(np.asarray(peak_time, float), (len(p),))
     before = want < pin.start_time
     after = (pin.status == SEATED) & (want >= pin.seat_time)

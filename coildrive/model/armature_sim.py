@@ -35,6 +35,7 @@ from .armature import (BOUND, MAX_BOUNCES, OPEN, REST_FRACTION, SEAT, ZERO, Arma
                        time_bound)
 from .armature_flight import OnePoint, _hermite, _hermite5, _Rhs, fly, fly_point, is_stiff
 from .rl import decay_current, decay_integrals, decay_time, rise_current, rise_integrals, rise_time
+from . import supply as bus_model
 
 #: Default scipy tolerances of the reference path (relative; absolute = rtol x scale).
 REFERENCE_RTOL = 1e-10
@@ -54,6 +55,7 @@ class Trajectory:
     lists every transition as ``(time, name)``; ``impacts`` every arrival at a stop as
     ``(time, stop, speed before, speed after)`` (m/s; ``stop`` is ``"seat"`` or
     ``"open"``) -- the kinetic energy lost there is ``m (before^2 - after^2) / 2``.
+    ``bus`` (V): the bulk capacitor's voltage on a drooping bus, else ``None``.
     """
 
     time: np.ndarray
@@ -71,6 +73,7 @@ class Trajectory:
     impacts: list = field(default_factory=list)
     state: str = ""
     stopped: bool = False
+    bus: np.ndarray | None = None
 
 
 class _Point:
@@ -92,6 +95,10 @@ class _Point:
         #: below which the freewheel blocks
         self.eddy = None if p.eddy is None else float(p.eddy[0])
         self.i_block = float(p.block_current[0])
+        self.droop = p.droops
+        self.rows = 6 if self.droop else 5
+        self.bus_open = p.bus(True) if self.droop else None
+        self.bus_closed = p.bus(False) if self.droop else None
         self.i_start = float(p.start_current[0])
         self.i_stay = float(p.stay_current[0])
         self.lam_start = self.flux_at(self.i_start, False)
@@ -139,7 +146,7 @@ class _Run:
         self.chunks: list = []  # (t, y(5 x k), on, point: its freewheel path)
 
     def emit(self, ts, ys, on):
-        self.chunks.append((np.atleast_1d(ts), np.atleast_2d(ys).reshape(5, -1), on, self.pt))
+        self.chunks.append((np.atleast_1d(ts), np.atleast_2d(ys).reshape(self.pt.rows, -1), on, self.pt))
 
     def mark(self, name: str, first_only: bool = True):
         if not (first_only and name in self.events):
@@ -151,34 +158,16 @@ def _rest_segment(run: _Run, t_end: float, on: bool, points: int, stop) -> None:
     """Advance a resting armature (open or seated) in closed form until it leaves its
     stop, the current reaches zero, or ``t_end``."""
     pt = run.pt
+    if pt.droop:
+        return _rest_segment_droop(run, t_end, on, points, stop)
     seated = run.state == "seated"
     ind = pt.coil_closed if seated else pt.coil_open
     x = 0.0 if seated else pt.stroke
-    i0 = pt.current(run.y[0], x)
-    if on:
-        run.live = True
-        # seated: the current rises, the armature stays (unless below the stay current)
-        if seated:
-            if i0 < pt.i_stay:
-                run.state = "free"
-                return
-            t_leave = math.inf
-        else:
-            t_leave = 0.0 if run.y[0] > pt.lam_start else float(
-                rise_time(pt.i_start, i0, pt.v_on, pt.r_on, pt.coil_open))
-    else:
-        if pt.eddy is not None:
-            # an eddy term: the flux outlasts the terminal current, dying through R_e once
-            # the freewheel blocks (the EddyCoil's decay segments follow it)
-            i0 = max(i0, 0.0)
-        elif not run.live or i0 <= 0.0:
-            run.live = False
-            i0 = 0.0
-        if seated:
-            t_leave = 0.0 if i0 <= pt.i_stay else float(
-                decay_time(pt.i_stay, i0, pt.r_off, pt.v_off, pt.coil_closed))
-        else:
-            t_leave = math.inf
+    start = _rest_start(run, on, seated, pt.current(run.y[0], x), lambda i: float(
+        rise_time(pt.i_start, i, pt.v_on, pt.r_on, pt.coil_open)))
+    if start is None:
+        return
+    i0, t_leave = start
     dt = min(t_leave, t_end - run.t)
     t_zero = math.inf
     if not on and run.live:
@@ -189,19 +178,60 @@ def _rest_segment(run: _Run, t_end: float, on: bool, points: int, stop) -> None:
         if on:
             i = rise_current(s, i0, pt.v_on, pt.r_on, ind)
             q, sq = rise_integrals(s, i0, pt.v_on, pt.r_on, ind)
-        elif run.live:
-            i = decay_current(s, i0, pt.r_off, pt.v_off, ind)
-            q, sq = decay_integrals(np.minimum(s, t_zero), i0, pt.r_off, pt.v_off, ind)
-        elif pt.eddy is not None:   # the freewheel blocked: the flux's tail through R_e
-            i = decay_current(s, i0, pt.r_off, pt.v_off, ind)
-            q = sq = np.zeros_like(s)
         else:
-            i = np.zeros_like(s)
-            q = sq = np.zeros_like(s)
+            i, q, sq = _off_samples(pt, s, i0, t_zero, ind, run.live)
         ys = np.stack([pt.flux_at(i, seated), np.full_like(s, x), np.zeros_like(s), run.y[3] + q, run.y[4] + sq])
         run.emit(run.t + s, ys, on)
         run.t += dt
         run.y = ys[:, -1].copy()
+    _rest_end(run, dt, t_zero, t_leave, t_end, on, seated, stop)
+
+
+def _rest_start(run: _Run, on: bool, seated: bool, i0: float, to_start):
+    """``(i0 A, t_leave s)`` of a resting piece: the current it starts from (0 where the
+    diode blocks) and when the armature leaves its stop (``to_start(i0)``: the switched-on
+    rise to the start current on the open stop); ``None`` when it leaves at once (seated
+    below the stay current with the switch on: ``run`` is then free)."""
+    pt = run.pt
+    if on:
+        run.live = True
+        # seated: the current rises, the armature stays (unless below the stay current)
+        if seated:
+            if i0 < pt.i_stay:
+                run.state = "free"
+                return None
+            return i0, math.inf
+        return i0, (0.0 if run.y[0] > pt.lam_start else to_start(i0))
+    if pt.eddy is not None:
+        # an eddy term: the flux outlasts the terminal current, dying through R_e once
+        # the freewheel blocks (the EddyCoil's decay segments follow it)
+        i0 = max(i0, 0.0)
+    elif not run.live or i0 <= 0.0:
+        run.live = False
+        i0 = 0.0
+    if seated:
+        return i0, (0.0 if i0 <= pt.i_stay else float(
+            decay_time(pt.i_stay, i0, pt.r_off, pt.v_off, pt.coil_closed)))
+    return i0, math.inf
+
+
+def _off_samples(pt: _Point, s, i0: float, t_zero: float, ind, live: bool):
+    """``(i A, int i dt A*s, int i^2 dt A^2*s)`` at ``s`` s of a resting coil's freewheel
+    decay from ``i0`` A (zero once blocked; with an eddy term the magnetising current's
+    tail through R_e, no terminal charge)."""
+    if live:
+        return (decay_current(s, i0, pt.r_off, pt.v_off, ind),
+                *decay_integrals(np.minimum(s, t_zero), i0, pt.r_off, pt.v_off, ind))
+    if pt.eddy is not None:   # the freewheel blocked: the flux's tail through R_e
+        return decay_current(s, i0, pt.r_off, pt.v_off, ind), np.zeros_like(s), np.zeros_like(s)
+    return np.zeros_like(s), np.zeros_like(s), np.zeros_like(s)
+
+
+def _rest_end(run: _Run, dt: float, t_zero: float, t_leave: float, t_end: float, on: bool,
+              seated: bool, stop) -> None:
+    """After a resting piece of ``dt`` s: the current reaching zero (``t_zero``), the
+    armature leaving its stop (``t_leave``), each marked."""
+    pt = run.pt
     if dt == t_zero and not on and run.live:
         run.live = False
         if pt.eddy is None:
@@ -215,12 +245,48 @@ def _rest_segment(run: _Run, t_end: float, on: bool, points: int, stop) -> None:
                 run.y[0] = min(run.y[0], pt.lam_stay * (1.0 - 1e-12))
             else:
                 run.y[0] = pt.lam_stay * (1.0 - 1e-12) if run.live else 0.0
-            run.state = "free"
-            run.mark("unlatch")
         else:
             run.y[0] = pt.lam_start * (1.0 + 1e-12)
-            run.state = "free"
-            run.mark("move")
+        run.state = "free"
+        run.mark("unlatch" if seated else "move")
+
+
+def _rest_segment_droop(run: _Run, t_end: float, on: bool, points: int, stop) -> None:
+    """:func:`_rest_segment` on a drooping bus (state row 5: the capacitor, V): switched
+    on, the closed form of :mod:`coildrive.model.supply` from the state the stop was
+    reached with; switched off, the coil's decay (the freewheel path draws nothing from the
+    bus) while the capacitor recharges through ``R_s``, ``u = V_s + (u0 - V_s) e^{-t/(R_s C)}``."""
+    pt = run.pt
+    seated = run.state == "seated"
+    b = pt.bus_closed if seated else pt.bus_open
+    ind = pt.coil_closed if seated else pt.coil_open
+    x = 0.0 if seated else pt.stroke
+    u0 = float(run.y[5])
+    span = t_end - run.t
+    start = _rest_start(run, on, seated, pt.current(run.y[0], x), lambda i: float(np.ravel(
+        bus_model.time_to(pt.i_start, b, min(i, pt.i_start), u0, span))[0]))
+    if start is None:
+        return
+    i0, t_leave = start
+    t_zero = math.inf
+    if not on and run.live:
+        t_zero = float(decay_time(0.0, i0, pt.r_off, pt.v_off, ind))
+    dt = min(t_leave, span, t_zero)
+    if dt > 0:
+        s = np.linspace(0.0, dt, max(points, 2))[1:]
+        if on:
+            i, u = bus_model.state_from(s, b, i0, u0)
+            q, sq = bus_model.integrals_from(s, b, np.full_like(s, i0), np.full_like(s, u0))
+        else:
+            tau = pt.source_resistance * pt.capacitance
+            u = pt.v_on + (u0 - pt.v_on) * np.exp(-s / tau)
+            i, q, sq = _off_samples(pt, s, i0, t_zero, ind, run.live)
+        ys = np.stack([pt.flux_at(i, seated), np.full_like(s, x), np.zeros_like(s), run.y[3] + q,
+                       run.y[4] + sq, u])
+        run.emit(run.t + s, ys, on)
+        run.t += dt
+        run.y = ys[:, -1].copy()
+    _rest_end(run, dt, t_zero, t_leave, t_end, on, seated, stop)
 
 
 def _fly_point(run: _Run, t_end: float, on: bool, rtol: float, dense: int):
@@ -254,13 +320,13 @@ def _fly_point(run: _Run, t_end: float, on: bool, rtol: float, dense: int):
 
 
 def _fly_numpy(run: _Run, t_end: float, on: bool, rtol: float, dense: int):
-    if _flight.SINGLE_POINT_SCALAR and run.pt.p.curves is None and run.pt.eddy is None:
+    if _flight.SINGLE_POINT_SCALAR and run.pt.p.curves is None and run.pt.eddy is None and not run.pt.droop:
         return _fly_point(run, t_end, on, rtol, dense)
     pt = run.pt
     fl = fly(pt.p, np.array([run.t]), run.y[:, None], np.array([t_end]), np.array([True]),
              np.array([on]), np.array([run.live]), rtol, record=True, stiff=pt.stiff)
     ts = np.array([a[0] for a in fl.path_t[1:]])
-    ys = np.array([a[:, 0] for a in fl.path_y[1:]]).T if len(fl.path_y) > 1 else np.zeros((5, 0))
+    ys = np.array([a[:, 0] for a in fl.path_y[1:]]).T if len(fl.path_y) > 1 else np.zeros((pt.rows, 0))
     keep = np.isfinite(ts)
     ts, ys = ts[keep], ys[:, keep]
     code = int(fl.end[0])
@@ -313,7 +379,8 @@ def _fly_scipy(run: _Run, t_end: float, on: bool, method: str, rtol: float, dens
     events = [seat, opened] + ([zero] if (not on and run.live) else [])
     span = t_end - run.t
     i_ref = pt.scales[0] / pt.l_closed
-    atol = rtol * np.concatenate([pt.scales, [i_ref * span, i_ref * i_ref * span]])
+    atol = rtol * np.concatenate([pt.scales, [i_ref * span, i_ref * i_ref * span]]
+                                 + ([[pt.v_on]] if pt.droop else []))
     sol = solve_ivp(fun, (run.t, t_end), run.y, method=method, rtol=rtol, atol=atol,
                     events=events, dense_output=dense > 1)
     if sol.status == -1:
@@ -400,7 +467,8 @@ def _free_segment(run: _Run, t_end: float, on: bool, method: str, rtol: float, d
 
 def simulate(p: ArmatureParams, schedule, state: str = "open", flux: float = 0.0,
              method: str = "numpy", rtol: float | None = None, points: int = 40, stop=None,
-             t0: float = 0.0, release_params: ArmatureParams | None = None) -> Trajectory:
+             t0: float = 0.0, release_params: ArmatureParams | None = None,
+             start: np.ndarray | None = None, live: bool | None = None) -> Trajectory:
     """Simulate one point through ``schedule``: segments ``(t_end, switch_on)``,
     ``(t_end, switch_on, samples)`` or ``(t_end, switch_on, samples, path)``, in time
     order.
@@ -419,6 +487,9 @@ def simulate(p: ArmatureParams, schedule, state: str = "open", flux: float = 0.0
     points : samples per piece of a segment that gives no count (closed-form pieces get
         that many, integrated pieces at least that many)
     stop : ``stop(run) -> bool``, checked after every transition, ends the run early
+    start, live : a whole start state instead of ``flux`` (lambda, x, v, q, sq; on a
+        drooping bus ``p.droops`` also the capacitor V, else it starts at ``v_on``) and
+        whether the current flows; ``state`` may then also be ``"free"`` (moving)
     """
     pt = _Point(p)
     paths = {"hold": pt}
@@ -427,10 +498,16 @@ def simulate(p: ArmatureParams, schedule, state: str = "open", flux: float = 0.0
                                                       v_off=release_params.v_off))
     if rtol is None:
         rtol = 1e-8 if method == "numpy" else REFERENCE_RTOL
-    if state not in ("open", "seated"):
+    if state not in ("open", "seated") and not (start is not None and state == "free"):
         raise ValueError(f"state {state!r}: expected 'open' or 'seated'")
-    x0 = pt.stroke if state == "open" else 0.0
-    run = _Run(pt, t0, np.array([flux, x0, 0.0, 0.0, 0.0]), state, flux > 0)
+    if start is None:
+        x0 = pt.stroke if state == "open" else 0.0
+        y0 = [flux, x0, 0.0, 0.0, 0.0] + ([pt.v_on] if pt.droop else [])
+        run = _Run(pt, t0, np.array(y0), state, flux > 0)
+    else:
+        y0 = list(np.asarray(start, float)[:5]) + ([float(start[5]) if len(start) > 5 else pt.v_on]
+                                                  if pt.droop else [])
+        run = _Run(pt, t0, np.array(y0), state, bool(flux > 0 if live is None else live))
     stop = stop or (lambda r: False)
     run.emit(t0, run.y, bool(schedule[0][1]) if schedule else False)
     guard = 0
@@ -479,7 +556,7 @@ def simulate(p: ArmatureParams, schedule, state: str = "open", flux: float = 0.0
                       charge=ys[3], square=ys[4], current=np.maximum(cur, 0.0),
                       magnetising_current=magnetising,
                       events=dict(run.events), log=list(run.log), impacts=list(run.impacts),
-                      state=run.state, stopped=stopped)
+                      state=run.state, stopped=stopped, bus=ys[5] if pt.droop else None)
 
 
 # --------------------------------------------------------------------------- references

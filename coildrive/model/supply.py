@@ -21,12 +21,17 @@ complex pair) by Putzer's formula ``e^{At} = e^{l1 t} I + f[l1, l2] (A - l1 I)``
 divided difference ``f = (e^{l1 t} - e^{l2 t})/(l1 - l2)`` (written with ``expm1`` so a
 double eigenvalue and a stiff one stay exact). No time stepping.
 
-The current from ``V_s`` is the step response of an all-pole second-order system
-(``I(s) = V_s / (s ((R + sL)(1 + s R_s C) + R_s))``), so ``i`` rises monotonically up to
-its first maximum at ``t = pi/omega`` (never, when the eigenvalues are real), and ``dv/dt``
-is zero at ``t = 0``: the bus falls monotonically to its first minimum, at the same
-``pi/omega`` (or for ever, when they are real). The rise time is a bisection of the closed
-form on that monotone stretch; the lowest bus over a peak of length ``T`` is
+From the charged capacitor the current is
+``I(s) = V_s (1 + s R_s C) / (s ((R + sL)(1 + s R_s C) + R_s))``: the numerator's zero
+(the capacitor's charge, ``di/dt = V_s/L`` at ``t = 0``) lets it rise faster than an
+all-pole response and overshoot -- with a complex pair its first maximum comes before
+``pi/omega``, and with real eigenvalues it may have one maximum above ``i_ss``. So the
+current rises monotonically up to the first zero of ``di/dt`` (from
+:func:`coildrive.model.linear2.first_zero`; for ever when there is none). The bus has
+``dv/dt = 0`` at ``t = 0`` (``dv/dt`` a multiple of ``e^{alpha t} sin(omega t)``, or of
+``e^{l1 t} - e^{l2 t}``): it falls monotonically to its first minimum at ``pi/omega``
+(or for ever, when the eigenvalues are real). The rise time is a bisection of the closed
+form on the current's monotone stretch; the lowest bus over a peak of length ``T`` is
 ``v(min(T, pi/omega))``.
 
 Limits: ``R_s -> 0`` is today's stiff bus (``V_s/R`` with ``tau = L/R``); ``C -> 0`` is a
@@ -66,8 +71,9 @@ class Bus:
 
     @property
     def turn_time(self) -> np.ndarray:
-        """``pi/omega`` s: the current's first maximum and the bus's first minimum (``inf``
-        when the eigenvalues are real: both monotone for ever)."""
+        """``pi/omega`` s: the bus's first minimum after switch-on (``inf`` when the
+        eigenvalues are real: it falls for ever). (The current's first maximum comes
+        earlier: :func:`rise_time`.)"""
         w = np.abs(self.l1.imag)
         with np.errstate(divide="ignore"):
             return np.where(w > 0, np.pi / np.where(w > 0, w, 1.0), np.inf)
@@ -94,13 +100,14 @@ def state(t, b: Bus) -> tuple[np.ndarray, np.ndarray]:
 def rise_time(i_target, b: Bus) -> np.ndarray:
     """Time (s) from switch-on to ``i_target`` A on the drooping bus (``inf`` where the
     current never gets there): a bisection of the closed form on its monotone stretch
-    ``[0, pi/omega]`` (for real eigenvalues, a bracket doubled from the slow time
-    constant until it holds the crossing)."""
+    up to its first maximum, the first zero of ``di/dt`` (where it has none: a bracket
+    doubled from the slow time constant until it holds the crossing)."""
     target = np.broadcast_to(np.asarray(i_target, float), b.i_ss.shape)
     slow = -1.0 / b.l1.real
-    hi = np.where(np.isfinite(b.turn_time), b.turn_time, slow)
-    reached = np.where(np.isfinite(b.turn_time), state(hi, b)[0] >= target, target < b.i_ss)
-    for _ in range(80):          # real eigenvalues: grow the bracket (converges: i -> i_ss)
+    top = _slope_zeros(b, 0.0, b.v_s, 0)[0]      # the current's first maximum (inf: none)
+    hi = np.where(np.isfinite(top), top, slow)
+    reached = np.where(np.isfinite(top), state(hi, b)[0] >= target, target < b.i_ss)
+    for _ in range(80):          # no maximum: grow the bracket (converges: i -> i_ss)
         short = reached & (state(hi, b)[0] < target)
         if not short.any():
             break
@@ -111,6 +118,14 @@ def rise_time(i_target, b: Bus) -> np.ndarray:
         up = state(mid, b)[0] >= target
         lo, hi = np.where(up, lo, mid), np.where(up, mid, hi)
     return np.where(reached & (target > 0), hi, np.where(target <= 0, 0.0, np.inf))
+
+
+def top_current(b: Bus) -> np.ndarray:
+    """The most current (A) the rise from switch-on reaches: at the current's first
+    maximum (the first zero of ``di/dt``; later maxima are lower), or ``i_ss`` where it
+    has none."""
+    top = _slope_zeros(b, 0.0, b.v_s, 0)[0]
+    return np.where(np.isfinite(top), state(np.where(np.isfinite(top), top, 0.0), b)[0], b.i_ss)
 
 
 def current(t, b: Bus) -> np.ndarray:
@@ -150,6 +165,98 @@ def bus_floor(v_s, r_s, i_top) -> np.ndarray:
     off-times, the release); the current falls from the end of the peak, so this bounds
     the bus from below from then on (``V_s`` V, ``R_s`` ohm)."""
     return np.asarray(v_s, float) - np.asarray(r_s, float) * np.asarray(i_top, float)
+
+
+def state_from(t, b: Bus, i0, v0) -> tuple[np.ndarray, np.ndarray]:
+    """``(i A, v V)`` at ``t`` s after a moment at which the coil carries ``i0`` A and the
+    bus is at ``v0`` V, the switch on throughout (the same circuit from any start:
+    ``x(t) = x_ss + e^{At} (x0 - x_ss)``). A moving armature's coil, once it rests at a
+    stop, is this circuit again from the state it arrived with."""
+    a = _matrix(b.r_s, b.c, b.r, b.l)
+    di, dv = linear2.apply(t, a, b.l1, b.l2, (np.asarray(i0, float) - b.i_ss,
+                                               np.asarray(v0, float) - b.v_ss))
+    return b.i_ss + di, b.v_ss + dv
+
+
+def _slope_zeros(b: Bus, i0, v0, row: int) -> tuple[np.ndarray, np.ndarray]:
+    """The first two zeros (s, ``inf`` where none) of ``d/dt`` of the state's ``row``
+    (0: current, 1: bus) from ``(i0, v0)``: the first from :func:`linear2.first_zero` on
+    ``e^{At} A d``; a complex pair's next ``pi/omega`` later (a real pair has one at most)."""
+    a = _matrix(b.r_s, b.c, b.r, b.l)
+    d = (np.asarray(i0, float) - b.i_ss, np.asarray(v0, float) - b.v_ss)
+    ad = linear2.times(a, d)
+    aad = linear2.times(a, ad)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        t1 = linear2.first_zero(ad[row], aad[row], b.l1, b.l2)
+    t1 = np.where(np.isnan(t1), np.inf, t1)
+    w = np.abs(b.l1.imag)
+    with np.errstate(divide="ignore"):
+        t2 = np.where(w > 0, t1 + np.pi / np.where(w > 0, w, 1.0), np.inf)
+    return t1, t2, ad[row]
+
+
+def lowest_from(t_end, b: Bus, i0, v0) -> tuple[np.ndarray, np.ndarray]:
+    """``(lowest bus V, when s)`` over ``[0, t_end]`` s from ``(i0 A, v0 V)``, the switch
+    on: the bus is a sum of two exponentials (or a damped sinusoid) about ``v_ss``, so its
+    lowest is at an end or at a zero of ``dv/dt`` -- the first, or for a complex pair the
+    next one ``pi/omega`` later (later minima lie closer to ``v_ss``): exact, no sampling."""
+    t_end = np.broadcast_to(np.asarray(t_end, float), b.i_ss.shape)
+    t1, t2, _ = _slope_zeros(b, i0, v0, 1)
+    best_v = np.broadcast_to(np.asarray(v0, float), b.i_ss.shape).astype(float)
+    best_t = np.zeros_like(best_v)
+    for t in (t_end, t1, t2):
+        ok = np.isfinite(t) & (t <= t_end)
+        v = state_from(np.where(ok, t, 0.0), b, i0, v0)[1]
+        low = ok & (v < best_v)
+        best_v, best_t = np.where(low, v, best_v), np.where(low, t, best_t)
+    return best_v, best_t
+
+
+def time_to(i_target, b: Bus, i0, v0, t_max) -> np.ndarray:
+    """Time (s) from ``(i0 A, v0 V)``, the switch on, to the coil current's first upward
+    crossing of ``i_target`` A within ``t_max`` s (``inf`` where none): on the current's
+    first rising stretch (from 0, or from the first zero of ``di/dt`` when it starts
+    falling, to the next zero of ``di/dt``; real eigenvalues: for ever after the last),
+    later maxima being lower (damped); a bisection of the closed form there."""
+    target = np.broadcast_to(np.asarray(i_target, float), b.i_ss.shape)
+    t_max = np.broadcast_to(np.asarray(t_max, float), b.i_ss.shape)
+    i0 = np.broadcast_to(np.asarray(i0, float), b.i_ss.shape)
+    t1, t2, slope0 = _slope_zeros(b, i0, v0, 0)
+    rising = slope0 > 0
+    lo = np.where(rising, 0.0, t1)
+    hi = np.minimum(np.where(rising, t1, t2), t_max)
+    lo = np.where(np.isfinite(lo), lo, t_max)
+    hi = np.where(np.isfinite(hi), hi, t_max)
+    reached = (state_from(hi, b, i0, v0)[0] >= target) & (lo <= hi)
+    a = lo.copy()
+    c = hi.copy()
+    for _ in range(BISECTION_STEPS):
+        mid = 0.5 * (a + c)
+        up = state_from(mid, b, i0, v0)[0] >= target
+        a, c = np.where(up, a, mid), np.where(up, mid, c)
+    return np.where(i0 >= target, 0.0, np.where(reached, c, np.inf))
+
+
+def integrals_from(t, b: Bus, i0, v0, nodes: int = 64) -> tuple[np.ndarray, np.ndarray]:
+    """``(int i dt A*s, int i^2 dt A^2*s)`` over ``[0, t]`` s from ``(i0, v0)``, the switch
+    on: the charge exact (integrating ``x' = A (x - x_ss)``: ``int (x - x_ss) dt =
+    A^-1 (x(t) - x0)``), the square by ``nodes``-point Gauss-Legendre quadrature of the
+    closed form (numpy's ``leggauss``; the integrand is smooth, a few exponentials)."""
+    shape = np.broadcast_shapes(np.shape(t), b.i_ss.shape, np.shape(i0), np.shape(v0))
+    t, i0, v0 = (np.broadcast_to(np.asarray(a, float), shape) for a in (t, i0, v0))
+    a11, a12, a21, a22 = _matrix(b.r_s, b.c, b.r, b.l)
+    i1, v1 = state_from(t, b, i0, v0)
+    det = a11 * a22 - a12 * a21
+    charge = b.i_ss * t + (a22 * (i1 - i0) - a12 * (v1 - v0)) / det
+    x, w = np.polynomial.legendre.leggauss(nodes)
+    s = 0.5 * t[..., None] * (x + 1.0)
+    ii = state_from(s, _expand(b), i0[..., None], v0[..., None])[0]
+    return charge, 0.5 * t * np.sum(w * ii * ii, axis=-1)
+
+
+def _expand(b: Bus) -> Bus:
+    """``b`` with a trailing axis on every array (to evaluate many times per point)."""
+    return Bus(*(np.asarray(getattr(b, f))[..., None] for f in b.__dataclass_fields__))
 
 
 def clamp_hold_ripple_current(ripple) -> np.ndarray:

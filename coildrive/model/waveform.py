@@ -52,6 +52,9 @@ class Waveform:
     in the on-times (Q1 + Q4), its ``switch_voltage`` the highest of the four switches'.
     ``boost_voltage`` (V; a boosted peak only, else ``None``) is the boost capacitor:
     its discharge in the peak, then its recharge (:func:`coildrive.model.boost.voltage_trace`).
+    ``bus_voltage`` (V; a moving armature on a drooping bus, else ``None``) is the bulk
+    capacitor: the run's state in the peak, then the source's voltage (the hold and the
+    release are modelled on the stiff bus).
     """
 
     time: np.ndarray
@@ -69,6 +72,7 @@ class Waveform:
     boost_voltage: np.ndarray | None = None
     magnetising_current: np.ndarray | None = None
     switches: dict[str, np.ndarray] | None = None
+    bus_voltage: np.ndarray | None = None
 
     def to_csv(self) -> str:
         """CSV text with header ``time_s,current_a,switch_on,switch_voltage_v,sense_current_a``
@@ -76,7 +80,7 @@ class Waveform:
         ``node_voltage_v,coil_voltage_v`` with a high-side switch, ``high_a_on,low_a_on,
         high_b_on,low_b_on,coil_voltage_v`` with a full bridge, ``magnetising_current_a``
         with an eddy-current term, ``boost_v`` with a boosted
-        peak)."""
+        peak, ``bus_v`` with a moving armature on a drooping bus)."""
         buf = io.StringIO()
         cols = [self.time, self.current, self.switch_on, self.switch_voltage, self.sense_current]
         head = "time_s,current_a,switch_on,switch_voltage_v,sense_current_a"
@@ -104,6 +108,10 @@ class Waveform:
         if self.boost_voltage is not None:
             cols.append(self.boost_voltage)
             head += ",boost_v"
+            fmt.append("%.6e")
+        if self.bus_voltage is not None:
+            cols.append(self.bus_voltage)
+            head += ",bus_v"
             fmt.append("%.6e")
         buf.write(head + "\n")
         np.savetxt(buf, np.column_stack(cols), delimiter=",", fmt=fmt)
@@ -475,12 +483,19 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     (inside the last on-time, a sample there) or ``-bypass_lead`` s after it, the
     current decaying slowly until then; ``bypass_on`` and ``events["bypass_open"]`` say
     when.
+
+    On a drooping bus (``supply.source_resistance``) the peak runs on it, the bulk
+    capacitor a state of the run (``bus_voltage``); the hold and the release on the stiff
+    bus, as the design takes them.
     """
     from .armature import params_from_loop, time_bound
     from .armature_sim import simulate
 
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
     p = params_from_loop(drive.armature, lp, l_factor, drive.coil.eddy_resistance)
+    s = drive.supply
+    p_peak = params_from_loop(drive.armature, lp, l_factor, drive.coil.eddy_resistance,
+                              (s.source_resistance, s.capacitance)) if s.droops else p
     split = split_decay(drive)
     bridge = full_bridge(drive)   # the hold decays slowly, the release fast into the bus
     fast = p_rel = None
@@ -532,7 +547,7 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
         # Fast path: seated at the end of the peak and the hold current never below the
         # stay current -- then the hold is the closed-form PWM of the seated coil (with
         # the coil's two curves, the seated curve's tabulated exact segments).
-        head = simulate(p, schedule[:1], method=method, points=points)
+        head = simulate(p_peak, schedule[:1], method=method, points=points)
         i0 = float(head.current[-1])
         if head.state == "seated":
             v, r_on, r_off, v_off = (float(a[0]) for a in (p.v_on, p.r_on, p.r_off, p.v_off))
@@ -560,6 +575,15 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
                 tr.velocity = np.concatenate([head.velocity, zeros, tail.velocity[1:]])
                 tr.log = head.log + tail.log
                 tr.events = {**tail.events, **head.events}
+                if head.bus is not None:
+                    tr.bus = np.concatenate([head.bus, np.full(th.size + tail.time.size - 1, float(p.v_on[0]))])
+        if tr is None and p_peak is not p:
+            # the peak on the drooping bus, then on from its end state on the stiff bus
+            rest = simulate(p, schedule[1:], state=head.state, start=np.array(
+                [head.flux[-1], head.position[-1], head.velocity[-1], head.charge[-1], head.square[-1]]),
+                live=bool(head.current[-1] > 0), method=method, points=points, stop=released,
+                release_params=p_rel, t0=peak_time)
+            tr = _joined(head, rest, float(p.v_on[0]))
     if tr is None:
         tr = simulate(p, schedule, method=method, points=points, stop=released,
                       release_params=p_rel)
@@ -599,9 +623,25 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
         times = [t for t, nm in tr.log if nm == name and t >= t_off]
         if times:
             events[name] = times[-1] if name == "open" else times[0]
+    rail = supply if tr.bus is None else tr.bus   # a high-side switch's node: from the bus
     return Waveform(tr.time, current, on, v_sw, sense, events, label, position=tr.position,
                     velocity=tr.velocity, bypass_on=bypass, magnetising_current=tr.magnetising_current,
-                    **(extra if bridge else node_columns(drive, supply, current, on, v_sw)))
+                    bus_voltage=tr.bus,
+                    **(extra if bridge else node_columns(drive, rail, current, on, v_sw)))
+
+
+def _joined(head, rest, v_bus: float):
+    """One trajectory of ``head`` (the peak on the drooping bus) and ``rest`` (on from its
+    end on the stiff bus at ``v_bus`` V): samples end to end, the moments of both."""
+    import dataclasses
+
+    cat = {name: np.concatenate([getattr(head, name), getattr(rest, name)[1:]])
+           for name in ("time", "flux", "position", "velocity", "switch_on", "charge", "square",
+                        "current")}
+    return dataclasses.replace(
+        rest, **cat, events={**rest.events, **head.events}, log=head.log + rest.log,
+        impacts=head.impacts + rest.impacts,
+        bus=np.concatenate([head.bus, np.full(rest.time.size - 1, v_bus)]))
 
 
 def hold_samples(t_start: float, i0: float, v: float, r_on: float, r_off: float, v_off: float,
