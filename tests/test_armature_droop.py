@@ -60,7 +60,7 @@ def _params(rs: float, c: float):
     d = load_drive(LATCH)
     lp = loop(d, np.array([CORNER["supply"]]), np.array([CORNER["temp"]]), np.array([CORNER["r"]]),
               np.array([CORNER["l"]]))
-    return params_from_loop(d.armature, lp, np.array([CORNER["l"]]), (rs, c))
+    return params_from_loop(d.armature, lp, np.array([CORNER["l"]]), bus=(rs, c))
 
 
 def reference(p, rs: float, c: float, t_peak: float) -> dict:
@@ -238,7 +238,7 @@ def test_design_simulate_and_emulate(tmp_path):
     assert sup["lowest_bus_corner"].startswith("10.8 V, -20 degC, coil -20 degC (cold), R-7%, L-10%"), sup
     d = load_drive(drive)
     cold = params_from_loop(d.armature, loop(d, np.array([10.8]), np.array([-20.0]), np.array([0.93]),
-                                             np.array([0.9])), np.array([0.9]), (2.0, 220e-6))
+                                             np.array([0.9])), np.array([0.9]), bus=(2.0, 220e-6))
     ref = reference(cold, 2.0, 220e-6, doc["pull_in"]["peak_time_s"])   # scipy solve_ivp (Radau)
     assert sup["lowest_bus_v"] == pytest.approx(ref["low"], abs=1e-4), (sup, ref)
     assert any(c["name"] == "supply_droop" for c in doc["checks"])
@@ -248,7 +248,7 @@ def test_design_simulate_and_emulate(tmp_path):
     assert "column bus_v" in sim.stderr
     data = np.genfromtxt(csv, delimiter=",", names=True)
     p = params_from_loop(d.armature, loop(d, np.array([10.8]), np.array([130.0]), np.array([1.0]),
-                                          np.array([1.0])), np.array([1.0]), (2.0, 220e-6))
+                                          np.array([1.0])), np.array([1.0]), bus=(2.0, 220e-6))
     ref = reference(p, 2.0, 220e-6, doc["pull_in"]["peak_time_s"])   # scipy solve_ivp (Radau)
     assert float(np.min(data["bus_v"])) == pytest.approx(ref["low"], abs=1e-4)
     assert data["bus_v"][-1] == pytest.approx(10.8), "the hold and release on the stiff supply"

@@ -154,7 +154,7 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
     s = drive.supply
     bus = (s.source_resistance, s.capacitance) if s.droops else (0.0, 0.0)
     p_pull = params_from_loop(drive.armature, flat, np.ravel(np.broadcast_to(l_factor, shape)),
-                              drive.coil.eddy_resistance, bus)
+                              drive.coil.eddy_resistance, bus=bus)
     p = p_pull.stiff_bus() if s.droops else p_pull
     p_rel = p
     if lp_rel is not None and lp_rel is not lp:

@@ -284,7 +284,7 @@ class ArmatureParams:
         return np.stack([self.l_closed * i_ref, self.stroke, v_ref])
 
 
-def params_from_loop(arm, lp, l_factor, eddy_resistance: float = 0.0,
+def params_from_loop(arm, lp, l_factor, eddy_resistance: float = 0.0, *,
                      bus: tuple[float, float] = (0.0, 0.0)) -> ArmatureParams:
     """:class:`ArmatureParams` at operating points from a drive's ``[armature]`` (an
     :class:`~coildrive.config.Armature`) and a :class:`~coildrive.model.circuit.Loop`.

@@ -495,7 +495,7 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     p = params_from_loop(drive.armature, lp, l_factor, drive.coil.eddy_resistance)
     s = drive.supply
     p_peak = params_from_loop(drive.armature, lp, l_factor, drive.coil.eddy_resistance,
-                              (s.source_resistance, s.capacitance)) if s.droops else p
+                              bus=(s.source_resistance, s.capacitance)) if s.droops else p
     split = split_decay(drive)
     bridge = full_bridge(drive)   # the hold decays slowly, the release fast into the bus
     fast = p_rel = None
