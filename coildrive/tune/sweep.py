@@ -633,17 +633,16 @@ def hold_toml(drive: Drive, c: Candidate) -> str:
 
 
 # --------------------------------------------------------------------------- the sweep
-def check_tunable(drive: Drive, who: str, live: bool = False) -> None:
+def check_tunable(drive: Drive, who: str) -> None:
     """Raise :class:`InputError` (naming the key) for a hold that tuning cannot step: a
     latching coil's pulses, a current-mode hold, a closed-loop hold. ``who``: the start of
     the message (``"coildrive tune sweeps"``, ``"live tuning steps"``); the offline sweep
-    and live tuning share these refusals (``live`` is kept for callers; nothing more is
-    refused live). Both take a flux-linkage curve (every figure on the curve's exact
-    orbit, :func:`coildrive.model.flux.orbit`, as in the design), an eddy term (its exact
-    orbit, :func:`coildrive.model.eddy.orbit`; the coil's heat and power are the copper's
-    plus the core's eddy loss, :func:`coildrive.model.pwm.coil_heat`), a mixed-decay hold
-    (its three-segment orbit) and a moving armature on a full bridge (its slow decay);
-    the live model at the bench point is :mod:`coildrive.tune.live_model`."""
+    and live tuning share these refusals. Both take a flux-linkage curve (every figure on
+    the curve's exact orbit, :func:`coildrive.model.flux.orbit`, as in the design), an
+    eddy term (its exact orbit, :func:`coildrive.model.eddy.orbit`; the coil's heat and
+    power are the copper's plus the core's eddy loss, :func:`coildrive.model.pwm.coil_heat`),
+    a mixed-decay hold (its three-segment orbit) and a moving armature on a full bridge
+    (its slow decay); the live model at the bench point is :mod:`coildrive.tune.live_model`."""
     if drive.hold.mode == "latch":
         raise InputError(drive.source, "hold.mode", f"{who} the PWM of a hold; a latching coil has "
                          "none: coildrive design sizes its pulses")
