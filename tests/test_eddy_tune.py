@@ -22,8 +22,7 @@ from circuit_reference import parts, reference_drive
 from conftest import EXAMPLES, run_cli
 from coildrive.config import load_drive
 from coildrive.design import design
-from coildrive.errors import InputError
-from coildrive.tune.sweep import TuneOptions, check_tunable, tune
+from coildrive.tune.sweep import TuneOptions, tune
 from test_eddy_coil import _example_drive
 from test_eddy_ngspice import R_EDDY, _eddy_netlist, _with_eddy
 from test_reference_ngspice import _netlist, _run
@@ -50,14 +49,6 @@ def test_the_pasted_hold_designs_to_the_printed_figures(tmp_path):
     assert d.eddy is not None and d.eddy.hold_eddy_power_w > 0.05, "precondition: a real eddy loss"
     assert rec.coil_power_w == pytest.approx(d.hold.coil_power_w, rel=1e-9)
     assert rec.coil_temp_c == pytest.approx(d.hold.coil_temp_c, abs=1e-3)
-
-
-def test_live_tuning_still_refuses_an_eddy_term(tmp_path):
-    drive = load_drive(_example_drive(tmp_path, 'eddy_resistance = "3 kohm"',
-                                      EXAMPLES / "reagent-valve-zener-24v.toml"))
-    check_tunable(drive, "coildrive tune sweeps")   # the offline sweep takes it
-    with pytest.raises(InputError, match="coil.eddy_resistance"):
-        check_tunable(drive, "live tuning steps", live=True)
 
 
 def test_tune_cli_prints_a_hold_for_an_eddy_coil(tmp_path):

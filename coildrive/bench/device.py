@@ -36,8 +36,9 @@ from ..config import Drive
 from ..design.timer import MIN_PERIOD_TICKS, solve_timer
 from .messages import Command, Event, EventKind, Info, Message, Opcode, Reply, ReplyStatus, Samples
 from .protocol import MAX_SAMPLES_PER_FRAME, FrameDecoder, FrameEncoder
+from .capture_file import CaptureEvent
 from .synth import (FAULTS, actuation_events, actuation_waveform, adc_scaling, current_codes, faulty_drive,
-                    first_sample_at_or_after, operating_point, sense_current)
+                    first_sample_at_or_after, operating_point, sense_current, threshold_switch_changes)
 
 #: Longest peak phase the device accepts, s (a coil at full current overheats; our limit).
 MAX_PEAK_TIME = 1.0
@@ -86,6 +87,9 @@ class DeviceOptions:
         watchdog: a lost STOP must not cook the coil), and a longer START is refused.
     samples_per_frame : ADC codes per SAMPLES frame.
     keep_sent : keep a log of every frame sent (:attr:`VirtualDevice.sent`), for tests.
+    threshold_switch : a drive without ``[armature]``: report a position switch read as a
+        relay's pick-up (``pull_in.current``) and drop-out (``release.current``) thresholds
+        (:func:`coildrive.bench.synth.threshold_switch_changes`).
     """
 
     supply: float | None = None
@@ -106,6 +110,7 @@ class DeviceOptions:
     max_hold: float = 1.0
     samples_per_frame: int = 64
     keep_sent: bool = False
+    threshold_switch: bool = False
 
     def __post_init__(self) -> None:
         def positive(name: str, value: float | None, allow_zero: bool = False) -> None:
@@ -317,7 +322,10 @@ class VirtualDevice(LineOutput):
             ticks = design.pull_in.peak_ticks
         self.settings = Settings(ticks, design.timer.prescaler,
                                  design.timer.period_ticks, round(duty * design.timer.period_ticks))
-        self.info = self._make_info(drive.armature is not None)
+        if options.threshold_switch and drive.armature is not None:
+            raise ValueError("a threshold switch stands in for a coil without [armature]; this "
+                             "drive's armature model has its own position switch: leave it out")
+        self.info = self._make_info(drive.armature is not None or options.threshold_switch)
         self._start_line(options)
 
     def _set_board(self, drive: Drive, options: DeviceOptions) -> None:
@@ -651,8 +659,15 @@ class VirtualDevice(LineOutput):
 
     def _events(self, rec: _Recording) -> list:
         """The ON, PEAK_END, OFF (and position-switch) events of a recording."""
-        return [e for e in actuation_events(rec.w, rec.t_on, self.sample_rate, self.options.fault)
-                if not (rec.peak_cut and e.kind == EventKind.PEAK_END)]
+        out = [e for e in actuation_events(rec.w, rec.t_on, self.sample_rate, self.options.fault)
+               if not (rec.peak_cut and e.kind == EventKind.PEAK_END)]
+        if self.options.threshold_switch and self.options.fault not in ("open", "stuck"):
+            d = self.drive
+            out += [CaptureEvent(first_sample_at_or_after(rec.t_on + t, self.sample_rate),
+                                 int(EventKind.SWITCH), level)
+                    for t, level in threshold_switch_changes(rec.w, d.pull_in.current,
+                                                             d.release.current, rec.key[2])]
+        return out
 
     # ------------------------------------------------------------------ time
     def _advance(self, now: float) -> None:

@@ -112,6 +112,31 @@ def _seated_changes(w: Waveform) -> list[tuple[float, int]]:
     return [(float(w.time[k]), int(seated[k])) for k in change]
 
 
+def threshold_switch_changes(w: Waveform, pick_up: float, drop_out: float,
+                             frequency: float) -> list[tuple[float, int]]:
+    """(time s, level) of a position switch read as a relay's two thresholds, for a coil
+    without an ``[armature]`` model: it closes (1) when the current first reaches
+    ``pick_up`` A, and opens (0) when, from one PWM period (``frequency`` Hz) after the
+    hold starts, the current's mean over the last period falls below ``drop_out`` A (a
+    relay's pick-up and drop-out currents: common practice). The current is the
+    magnetising current where the waveform has one (an eddy term: it makes the flux and
+    the force), else the coil current; the period's mean is the exact charge of the
+    waveform's piecewise-linear samples over the period, divided by the period.
+    """
+    i = np.asarray(w.magnetising_current if w.magnetising_current is not None else w.current, float)
+    t = np.asarray(w.time, float)
+    up = np.flatnonzero(i >= pick_up)
+    if not up.size:
+        return []
+    t_seat = float(t[up[0]])
+    period = 1.0 / frequency
+    charge = np.concatenate([[0.0], np.cumsum(0.5 * (i[1:] + i[:-1]) * np.diff(t))])
+    after = t >= max(t_seat, float(w.events.get("hold", t_seat))) + period
+    mean = (charge[after] - np.interp(t[after] - period, t, charge)) / period
+    low = np.flatnonzero(mean < drop_out)
+    return [(t_seat, 1)] + ([(float(t[after][low[0]]), 0)] if low.size else [])
+
+
 def actuation_waveform(drive: Drive, supply: float, coil_temp: float, peak_time: float,
                        duty: float, frequency: float, hold_time: float, *,
                        resistance_scale: float = 1.0, inductance_scale: float = 1.0,

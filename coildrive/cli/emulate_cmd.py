@@ -54,6 +54,7 @@ def emulate_command(
     duration: Optional[str] = typer.Option(None, "--duration", help='Stop after this long, e.g. "10 s" (default: until SIGINT/SIGTERM).'),
     baud: Optional[int] = typer.Option(None, "--baud", help="Line rate in baud (default: the board file's link baud)."),
     line_log: Optional[Path] = typer.Option(None, "--line-log", help="When it stops, write the frames the line damaged (--drop-bytes, --corrupt-bytes) to this CSV: frame number, sequence number, kind, delimiter damaged."),
+    threshold_switch: bool = typer.Option(False, "--threshold-switch", help="A drive without [armature]: report a position switch that closes when the current reaches pull_in.current and opens when its mean over a PWM period falls below release.current (a relay's pick-up and drop-out)."),
     firmware: Optional[Path] = typer.Option(None, "--firmware", help="Run the generated C driver of this folder (firmware-driver --out) in the device, compiled for this computer."),
 ) -> None:
     """Serve a virtual bench device for DRIVE on a pseudo-terminal; print its path first."""
@@ -78,7 +79,7 @@ def emulate_command(
             hold_time=parse_quantity(hold_time, "time", "--hold-time"),
             resistance_scale=resistance_scale, inductance_scale=inductance_scale,
             fault=_FAULTS.get(fault) if fault else None, noise_codes=noise, drop_bytes=drop_bytes,
-            corrupt_bytes=corrupt_bytes, seed=seed, baud=baud)
+            corrupt_bytes=corrupt_bytes, seed=seed, baud=baud, threshold_switch=threshold_switch)
     except OptionError as err:
         raise InputError(_OPTION.get(err.name, err.name), "", err.message) from None
     if line_log is not None:
@@ -99,6 +100,9 @@ def emulate_command(
             raise InputError("--channel", "", f"{drive} is a drive file, not a system file: leave --channel out")
         drv = load_drive(drive, board)
         d = None if drv.latch is not None else design(drv)
+    if threshold_switch and (d is None or firmware is not None):
+        raise InputError("--threshold-switch", "", "the threshold switch runs in the built-in "
+                         "firmware of a PWM hold: leave it out with --firmware or a latching coil")
     try:
         if d is None:   # a latching coil: its set and reset pulses
             device = _latch_device(drive, drv, options, firmware, fault)
@@ -114,6 +118,8 @@ def emulate_command(
         key = ("hold.mode" if "voltage-mode" in str(err) else
                "pull_in.current" if "peak phase" in str(err) else
                "armature" if "[armature]" in str(err) else None)
+        if "threshold switch" in str(err):
+            raise InputError("--threshold-switch", "", str(err)) from None
         if key is None:
             raise
         raise InputError(str(drive), key, str(err)) from None

@@ -165,7 +165,7 @@ def _live(drive: Path, board: Optional[str], port: str, as_json: bool, header: O
         from ..codegen.header import check_prefix
         check_prefix(prefix)
     d = load_drive(drive, board)
-    check_tunable(d, "live tuning steps", live=True)
+    check_tunable(d, "live tuning steps")
     des = design(d)
     if not des.ok:
         # a failing design (switch voltage, coil temperature, ...) must not drive hardware

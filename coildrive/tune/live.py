@@ -584,8 +584,10 @@ class LiveTuner:
             hint = ("" if self.drive.armature is not None else
                     ". The drive file has no [armature] section: if the device is coildrive emulate of "
                     "this file, its coil has no moving armature, so there is no dip and nothing to drop "
-                    "out. Live tuning needs an armature that moves: a real coil on the bench, or an "
-                    "emulated drive with an [armature] section (e.g. examples/locker-latch-12v.toml)")
+                    "out. Live tuning needs an armature that moves: a real coil on the bench, an "
+                    "emulated drive with an [armature] section (e.g. examples/locker-latch-12v.toml), "
+                    "or coildrive emulate --threshold-switch (a position switch at pull_in.current "
+                    "and release.current)")
             raise LiveFailure("stuck", f"stuck armature: actuation {act.number} (duty {act.duty:.4f}) did not "
                               f"seat -- {act.judgement.evidence}; the device was stopped{hint}")
         return act

@@ -65,8 +65,9 @@ class HoldFigures:
     """The model's seated hold at the bench point for some duties (arrays): the current
     that counts for the force (``force_a``: RMS, or the ripple bottom where the armature
     could lift within a period; the mean without an ``[armature]``), ``mean_a``,
-    ``ripple_a`` (peak-to-peak), and ``tau_s`` (time constant of the PWM-averaged
-    current, ``L / (D R_on + (1 - D) R_off)``)."""
+    ``ripple_a`` (peak-to-peak of the current the sense resistor carries: with an eddy
+    term the terminal current, steps at the edges included), and ``tau_s`` (time
+    constant of the PWM-averaged current, :func:`averaged_time_constant`)."""
 
     duty: np.ndarray
     force_a: np.ndarray
@@ -77,25 +78,53 @@ class HoldFigures:
 
 def hold_figures(drive: Drive, point: BenchPoint, duty, frequency: float) -> HoldFigures:
     """:class:`HoldFigures` of a seated hold at ``duty`` (array) and ``frequency`` Hz,
-    nominal parts, at the bench point (the exact PWM steady state of
-    :mod:`coildrive.model.pwm`; the force current of
-    :func:`coildrive.model.armature.hold_force_current`)."""
+    nominal parts, at the bench point: the exact periodic orbit of
+    :func:`coildrive.model.pwm.pwm_steady_state` on the hold's loop, as the design and the
+    offline sweep evaluate it -- a flux-linkage curve's (the seated curve with an
+    ``[armature]``), an eddy term's, a mixed-decay hold's three segments, a full bridge's
+    slow decay -- and the force current of
+    :func:`coildrive.model.armature.hold_force_current`."""
     from ..model.circuit import loop
-    from ..model.flux import incremental_at
     from ..model.pwm import pwm_steady_state
 
     duty = np.atleast_1d(np.asarray(duty, float))
     lp = loop(drive, point.supply_v, point.coil_temp_c, 1.0, 1.0)
-    ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
+    ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance,
+                          mixed=lp.mixed)
     force = ss.mean
     if drive.armature is not None:
         from ..model.armature import hold_force_current, params_from_loop
 
         p = params_from_loop(drive.armature, lp, 1.0)
         force, _ = hold_force_current(p, ss.i_min, ss.rms, ss.period)
-    tau = incremental_at(lp.inductance, ss.mean) / (duty * lp.r_on + (1.0 - duty) * lp.r_off)
+    tau = averaged_time_constant(lp, duty, ss.mean)
     return HoldFigures(duty, np.asarray(force, float), np.asarray(ss.mean, float),
                        np.asarray(ss.ripple, float), np.asarray(tau, float))
+
+
+def averaged_time_constant(lp, duty, mean):
+    """Time constant (s) of the PWM-averaged hold current at ``duty`` on the loop ``lp``,
+    about the mean current ``mean`` A: ``L_d / R_avg``.
+
+    ``L_d`` is the incremental inductance at the mean (a flux-linkage curve's
+    ``dpsi/di``, else ``L``). ``R_avg`` weights each segment's loop resistance by its
+    share of the period: ``D R_on + (1 - D) R_off``, with mixed decay the off-time split
+    ``(1 - f) R_off + f R_fast``. With an eddy term the magnetising branch sees each
+    loop through the eddy resistance ``R_e`` (its Thevenin resistance ``R R_e / (R +
+    R_e)``, :func:`coildrive.model.eddy.thevenin`): slower than without.
+    """
+    from ..model.eddy import EddyCoil
+    from ..model.flux import incremental_at
+
+    ind = lp.inductance
+    r_on, r_off = np.asarray(lp.r_on, float), np.asarray(lp.r_off, float)
+    if lp.mixed is not None and lp.mixed.fraction > 0:
+        r_off = (1.0 - lp.mixed.fraction) * r_off + lp.mixed.fraction * np.asarray(lp.mixed.r_fast, float)
+    if isinstance(ind, EddyCoil):
+        r_e = np.asarray(ind.resistance, float)
+        r_on, r_off = r_on * r_e / (r_on + r_e), r_off * r_e / (r_off + r_e)
+        ind = ind.magnetising
+    return incremental_at(ind, mean) / (duty * r_on + (1.0 - duty) * r_off)
 
 
 def model_stay_current(drive: Drive, point: BenchPoint) -> float:

@@ -633,16 +633,16 @@ def hold_toml(drive: Drive, c: Candidate) -> str:
 
 
 # --------------------------------------------------------------------------- the sweep
-def check_tunable(drive: Drive, who: str, live: bool = False) -> None:
+def check_tunable(drive: Drive, who: str) -> None:
     """Raise :class:`InputError` (naming the key) for a hold that tuning cannot step: a
-    current-mode hold, a closed-loop hold, and for live tuning (``live``) a flux-linkage
-    curve, an eddy-current term and a mixed-decay hold. ``who``: the start of the message
-    (``"coildrive tune sweeps"``, ``"live tuning steps"``); the offline sweep and live tuning
-    share these refusals. The offline sweep takes a curve (every figure is the curve's exact
-    orbit, :func:`coildrive.model.flux.orbit`, as in the design) and a mixed-decay hold (its
-    exact orbit; the live model at the bench point has no fast part yet) and an eddy term
-    (its exact orbit, :func:`coildrive.model.eddy.orbit`; the coil's heat and power are the
-    copper's plus the core's eddy loss, :func:`coildrive.model.pwm.coil_heat`)."""
+    latching coil's pulses, a current-mode hold, a closed-loop hold. ``who``: the start of
+    the message (``"coildrive tune sweeps"``, ``"live tuning steps"``); the offline sweep
+    and live tuning share these refusals. Both take a flux-linkage curve (every figure on
+    the curve's exact orbit, :func:`coildrive.model.flux.orbit`, as in the design), an
+    eddy term (its exact orbit, :func:`coildrive.model.eddy.orbit`; the coil's heat and
+    power are the copper's plus the core's eddy loss, :func:`coildrive.model.pwm.coil_heat`),
+    a mixed-decay hold (its three-segment orbit) and a moving armature on a full bridge
+    (its slow decay); the live model at the bench point is :mod:`coildrive.tune.live_model`."""
     if drive.hold.mode == "latch":
         raise InputError(drive.source, "hold.mode", f"{who} the PWM of a hold; a latching coil has "
                          "none: coildrive design sizes its pulses")
@@ -653,20 +653,6 @@ def check_tunable(drive: Drive, who: str, live: bool = False) -> None:
         raise InputError(drive.source, "hold.regulation", f"{who} a fixed or supply-table compare; "
                          "a closed-loop hold sets its own compare every PWM period and holds its "
                          "set-point at every corner: set hold.current and run coildrive design")
-    if drive.coil.flux_current and live:
-        raise InputError(drive.source, "coil.flux_current", "live tuning does not support a "
-                         "flux-linkage curve yet: tune offline (coildrive tune without --port), "
-                         "or live with coil.inductance at the hold current's incremental value")
-    if live and drive.hold.fast_fraction > 0:
-        raise InputError(drive.source, "hold.fast_fraction", f"{who} a slow-decay hold only; tune "
-                         "a mixed-decay hold offline (coildrive tune without --port)")
-    if live and drive.armature is not None and drive.switch.topology == "full_bridge":
-        raise InputError(drive.source, "armature", "live tuning does not support a moving armature on "
-                         "a full bridge yet: tune offline (coildrive tune without --port)")
-    if drive.coil.eddy_resistance and live:
-        key = "coil.eddy_time_constant" if drive.coil.eddy_time_constant else "coil.eddy_resistance"
-        raise InputError(drive.source, key, "live tuning does not support an eddy-current term "
-                         "yet: tune offline (coildrive tune without --port)")
 
 
 def tune(drive: Drive, options: TuneOptions | None = None) -> TuneResult:
