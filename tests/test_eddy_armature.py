@@ -312,3 +312,31 @@ def test_the_cycles_peak_heat_bounds_the_moving_armatures(tmp_path):
             (tr.current - tr.magnetising_current) ** 2, tr.time)
         bound = float(peak_heat(drive, lp, peak))
         assert heat <= bound <= 1.5 * heat, (supply, heat, bound)
+
+
+def test_live_tuning_holds_on_the_magnetising_current(tmp_path):
+    """Live tuning's model of the latch with an eddy term: the hold's force current is the
+    magnetising current's RMS (the terminal RMS, higher by the eddy branch's share, would
+    overstate the force), and a bench dropping out at the model's stay current recommends
+    what the offline sweep at the file's frequency recommends."""
+    from coildrive.config import load_drive
+    from coildrive.tune.live_model import bench_point, hold_figures, model_stay_current, recommend
+    from coildrive.tune.sweep import TuneOptions, tune
+
+    d = load_drive(_latch_with_eddy(tmp_path))
+    point = bench_point(d)
+    f = d.hold.frequency
+    hf = hold_figures(d, point, [0.4], f)
+    assert float(hf.force_a[0]) < float(hf.mean_a[0]) * 1.2
+    from coildrive.model.circuit import loop
+    from coildrive.model.pwm import pwm_steady_state
+    lp = loop(d, point.supply_v, point.coil_temp_c, 1.0, 1.0)
+    ss = pwm_steady_state(np.array([0.4]), f, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
+    assert float(ss.magnetising_rms[0]) < float(ss.rms[0])
+    assert float(hf.force_a[0]) == pytest.approx(float(ss.magnetising_rms[0]), rel=1e-3)
+    live = recommend(d, point, model_stay_current(d, point))
+    # the sensed ripple carries the eddy branch's step at each edge ((V + V_off) / (R + R_e),
+    # ~85 mA here), above the sweep's default ripple limit: allow it
+    off = tune(d, TuneOptions(min_frequency=f, max_frequency=f, levels=1, top=1, max_ripple=0.2)).recommendation
+    assert live.hold_current_a == pytest.approx(off.hold_current_a, rel=1e-9)
+    assert (live.period_ticks, live.compare_ticks) == (off.period_ticks, off.compare_ticks)

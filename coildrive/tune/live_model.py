@@ -95,8 +95,10 @@ def hold_figures(drive: Drive, point: BenchPoint, duty, frequency: float) -> Hol
     if drive.armature is not None:
         from ..model.armature import hold_force_current, params_from_loop
 
-        p = params_from_loop(drive.armature, lp, 1.0)
-        force, _ = hold_force_current(p, ss.i_min, ss.rms, ss.period)
+        p = params_from_loop(drive.armature, lp, 1.0, drive.coil.eddy_resistance)
+        # the force goes with the magnetising current (an eddy term's terminal RMS is higher)
+        rms = ss.rms if ss.magnetising_rms is None else ss.magnetising_rms
+        force, _ = hold_force_current(p, ss.i_min, rms, ss.period)
     tau = averaged_time_constant(lp, duty, ss.mean)
     return HoldFigures(duty, np.asarray(force, float), np.asarray(ss.mean, float),
                        np.asarray(ss.ripple, float), np.asarray(tau, float))
@@ -137,7 +139,7 @@ def model_stay_current(drive: Drive, point: BenchPoint) -> float:
     from ..model.circuit import loop
 
     lp = loop(drive, point.supply_v, point.coil_temp_c, 1.0, 1.0)
-    return float(params_from_loop(drive.armature, lp, 1.0).stay_current[0])
+    return float(params_from_loop(drive.armature, lp, 1.0, drive.coil.eddy_resistance).stay_current[0])
 
 
 def model_dropout_duty(drive: Drive, point: BenchPoint, frequency: float, current: float | None = None,
