@@ -1247,9 +1247,9 @@ def _eddy_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel, swit
     if hold.mode == "current":
         raise InputError(source, "hold.mode", f"\"current\" with {what} is not supported yet: "
                          "use mode = \"voltage\"")
-    if switch.topology == "full_bridge":
-        raise InputError(source, "switch.topology", f"\"full_bridge\" with {what} is not "
-                         "supported yet")
+    if switch.topology == "full_bridge" and hold.fast_fraction > 0:
+        raise InputError(source, "hold.fast_fraction", f"mixed decay with {what} on a full bridge is "
+                         "not supported yet: leave it out (slow decay in the hold)")
     if freewheel.split_decay and freewheel.bypass_lead < 0:
         raise InputError(source, "freewheel.bypass_lead", f"a bypass that opens after the final "
                          f"turn-off with {what} is not supported yet: open it at or before the "

@@ -65,7 +65,6 @@ def test_file_errors_name_the_key(tmp_path, extra, key, words):
 
 
 @pytest.mark.parametrize("example, key", [("locker-latch-12v", "coil.eddy_resistance"),
-                                          ("dosing-valve-bridge-24v", "switch.topology"),
                                           ("dosing-valve-closed-loop", "hold.regulation")])
 def test_unmodelled_combinations_are_refused_in_one_line(tmp_path, example, key):
     path = _example_drive(tmp_path, 'eddy_resistance = "300 ohm"', EXAMPLES / f"{example}.toml")

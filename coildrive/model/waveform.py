@@ -23,7 +23,7 @@ import numpy as np
 
 from ..config import Drive
 from . import bridge
-from .circuit import full_bridge, loop, split_decay
+from .circuit import full_bridge, loop, split_decay, two_paths
 from . import boost as boost_model
 from . import supply as bus_model
 from .eddy import EddyCoil
@@ -127,7 +127,7 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
                                   hold_time, r_factor, l_factor, points, label)
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
     if isinstance(lp.inductance, EddyCoil):   # an eddy-current term: its own sampling
-        fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") if split_decay(drive) else None
+        fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") if two_paths(drive) else None
         return _eddy_actuation(drive, lp, supply, peak_time, duty, frequency, hold_time,
                                points, label, fast)
     if split_decay(drive):
@@ -245,10 +245,14 @@ def _eddy_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: flo
     ``current`` is the terminal current, ``magnetising_current`` the flux's. ``fast``:
     split decay's release loop (the hold through ``lp``, the slow one), the bypass
     opening ``freewheel.bypass_lead`` s before the final turn-off (no earlier than the
-    last on-time's start)."""
+    last on-time's start); or a full bridge's fast decay from the final turn-off (the
+    per-switch columns and the coil voltage of :func:`_bridge_columns`; once the body
+    diodes block, the coil's terminals show the flux's decay through ``R_e``, ``-R_e
+    i_m``)."""
     from .eddy_waveform import actuation as eddy_samples
 
-    lead = drive.freewheel.bypass_lead if fast is not None else 0.0
+    bridged = full_bridge(drive)
+    lead = drive.freewheel.bypass_lead if fast is not None and not bridged else 0.0
     ts, cs, ms, ons, t_cut, t_zero = eddy_samples(drive, lp, peak_time, duty, frequency,
                                                    hold_time, points, fast, lead)
     order = np.argsort(np.concatenate(ts), kind="stable")   # the bypass's sample, in place
@@ -267,6 +271,15 @@ def _eddy_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: flo
     on = np.concatenate(ons).astype(np.int8)
     v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
     events = {"on": 0.0, "hold": peak_time, "off": t_cut, "zero": t_zero}
+    magnetising = np.concatenate(ms)
+    if bridged:
+        v_sw = np.where(time > t_cut, _switch_and_sense(drive, fast, supply, current, on)[0], v_sw)
+        v_sw, sense, extra = _bridge_columns(drive, supply, time, current, on, v_sw, t_cut)
+        r_e = float(np.ravel(lp.inductance.resistance)[0])
+        blocked = (time > t_cut) & (current <= 0.0)
+        extra["coil_voltage"] = np.where(blocked, -r_e * magnetising, extra["coil_voltage"])
+        return Waveform(time, current, on, v_sw, sense, events, label,
+                        magnetising_current=magnetising, **extra)
     extra = {}
     if fast is not None:   # split decay: the fast path's switch voltage once the bypass opens
         t_open = max(t_cut - lead, t_cut - duty / frequency)
@@ -276,7 +289,7 @@ def _eddy_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: flo
         extra["bypass_on"] = bypass
     return Waveform(time, current, on, v_sw, sense, events, label,
                     **node_columns(drive, supply, current, on, v_sw),
-                    magnetising_current=np.concatenate(ms), **extra)
+                    magnetising_current=magnetising, **extra)
 
 
 def peak_samples(peak_time: float, v: float, r_on: float, ind: float, big: int,
