@@ -1225,16 +1225,6 @@ def _read_table(s: _Section, current_key: str, flux_key: str):
     return columns[0], columns[1]
 
 
-def _flux_curve_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel,
-                       switch: Switch, thermal: Thermal, duty: "Duty | None") -> None:
-    """What a flux-linkage curve does not yet work with: one line naming the key."""
-    if not coil.flux_current:
-        return
-    if switch.topology == "full_bridge" and hold.fast_fraction > 0:
-        raise InputError(source, "hold.fast_fraction", "mixed decay with a flux-linkage curve "
-                         "(coil.flux_current) is not supported yet: leave it out (slow decay)")
-
-
 def _eddy_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel, switch: Switch,
                  thermal: Thermal, duty: "Duty | None", supply: Supply) -> None:
     """What an eddy-current term does not yet work with: one line naming the key."""
@@ -1829,7 +1819,6 @@ def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_
     _eddy_limits(source, coil, hold, freewheel, switch, thermal, duty, supply)
     _check_droop(source, coil, switch, supply, armature, hold)
     _check_boost(source, origins, coil, switch, freewheel, supply, hold, pull_in, armature, duty)
-    _flux_curve_limits(source, coil, hold, freewheel, switch, thermal, duty)
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:
         raise InputError(origins.get("clamp_voltage", source), "freewheel.clamp_voltage",
                          f"{freewheel.clamp_voltage:g} V is not above supply.max ({supply.max:g} V): "

@@ -133,6 +133,17 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
     if split_decay(drive):
         return _split_actuation(drive, lp, supply, coil_temp, peak_time, duty, frequency,
                                 hold_time, r_factor, l_factor, points, label)
+    if isinstance(lp.inductance, FluxCoil) and lp.mixed is not None:   # a curve's mixed decay
+        from .mixed_waveform import CurveSegments
+
+        coil = one_point(lp.inductance)
+        v, r_on, r_off = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off))
+        tp = np.linspace(0.0, peak_time, 40 * points + 1)
+        peak = rise_current(tp, 0.0, v, r_on, coil)
+        seg = CurveSegments(coil, v, r_on, r_off, lp.mixed, float(peak[-1]))
+        return _mixed_actuation(drive, lp, supply, coil_temp, peak_time, float(peak[-1]), duty, frequency,
+                                hold_time, r_factor, l_factor, points, label, [tp], [peak],
+                                [np.ones_like(tp)], seg)
     if isinstance(lp.inductance, FluxCoil):   # a saturating coil: its own sampling
         fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") if full_bridge(drive) else lp
         return _flux_actuation(drive, lp, supply, peak_time, duty, frequency, hold_time,
@@ -144,8 +155,11 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
     # Peak: full on from zero.
     i0 = peak_samples(peak_time, v, r_on, ind, big, ts, cs, ons, drive)
     if lp.mixed is not None:
+        from .mixed_waveform import LinearSegments
+
         return _mixed_actuation(drive, lp, supply, coil_temp, peak_time, i0, duty, frequency,
-                                hold_time, r_factor, l_factor, points, label, ts, cs, ons)
+                                hold_time, r_factor, l_factor, points, label, ts, cs, ons,
+                                LinearSegments(v, r_on, r_off, ind, lp.mixed))
 
     # Hold: per-period start currents by scalar recurrence, then vectorised sampling.
     t_hold, i_hold, on_hold, t_offedge, i_off, _ = hold_samples(
@@ -178,16 +192,16 @@ def nominal_boost(drive: Drive, r_on: float, ind: float) -> boost_model.Boost:
 def _mixed_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_time: float,
                      i0: float, duty: float, frequency: float, hold_time: float, r_factor: float,
                      l_factor: float, points: int, label: str, ts: list, cs: list,
-                     ons: list) -> Waveform:
+                     ons: list, seg) -> Waveform:
     """:func:`actuation`'s hold and release with a full bridge's mixed decay
-    (:mod:`coildrive.model.mixed_waveform`): the switches see the fast path's voltage
-    while the current flows into the bus; the per-switch columns and the coil voltage
-    follow the three segments (on: Q1 + Q4, fast: all four open, slow: Q2 + Q4)."""
+    (:mod:`coildrive.model.mixed_waveform`, its segments ``seg``: a linear coil's or a
+    curve's): the switches see the fast path's voltage while the current flows into the
+    bus; the per-switch columns and the coil voltage follow the three segments (on: Q1 +
+    Q4, fast: all four open, slow: Q2 + Q4)."""
     from .mixed_waveform import mixed_hold_samples
 
     t_hold, i_hold, on_hold, fast_hold, t_off, i_off, fast_part = mixed_hold_samples(
-        peak_time, i0, float(lp.v_on), float(lp.r_on), float(lp.r_off), float(lp.inductance),
-        duty, frequency, hold_time, points, lp.mixed)
+        peak_time, i0, seg, duty, frequency, hold_time, points, lp.mixed)
     n_peak = sum(len(t) for t in ts)
     ts.append(t_hold)
     cs.append(i_hold)
