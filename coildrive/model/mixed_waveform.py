@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from .flux import FluxCoil
 from .pwm import MixedDecay
 from .rl import decay_current, decay_time, rise_current
 
@@ -61,6 +62,15 @@ class CurveSegments:
 
     def slow(self, i0, t):
         return self._slow.decay(i0, t)
+
+
+def segments_of(inductance, v: float, r_on: float, r_off: float, mixed: MixedDecay, top: float):
+    """The segments of one operating point's coil: ``inductance`` H (a linear coil) or a
+    :class:`~coildrive.model.flux.FluxCoil` (tabulated up to ``top`` A and the on-loop's
+    asymptote)."""
+    if isinstance(inductance, FluxCoil):
+        return CurveSegments(inductance, v, r_on, r_off, mixed, top)
+    return LinearSegments(v, r_on, r_off, float(inductance), mixed)
 
 
 def mixed_hold_samples(t_start: float, i0: float, seg, duty: float, frequency: float,

@@ -524,6 +524,10 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     # the bypass opens inside the last on-time (no earlier than its start) or after the
     # turn-off; without split decay there is no bypass
     t_open = (t_off - min(lead, t_on) if lead >= 0 else t_off + lag) if split else math.inf
+    # mixed decay (a bridge's hold.fast_fraction): each off-time starts fast (all four open,
+    # the release's path into the bus) and ends slow
+    mixed = lp.mixed
+    t_fast = mixed.fraction * (period - t_on) if mixed is not None else 0.0
     schedule = []
     if peak_time > 0:
         schedule.append((peak_time, True, big))
@@ -534,7 +538,10 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
                 schedule.append((t_open, True, points))  # a sample where the bypass opens
             schedule.append((start + t_on, True, points))
         if k < n - 1 and t_on < period:
-            schedule.append((start + period, False, points))
+            if t_fast > 0:
+                schedule.append((start + t_on + t_fast, False, points, "release"))
+            if t_on + t_fast < period:
+                schedule.append((start + period, False, points))
     i_max = float(p.v_on[0] / p.r_on[0])
     t_un = float(decay_time(min(float(p.stay_current[0]), i_max), i_max, p.r_off[0], p.v_off[0],
                             p.coil_closed[0] if p.curves is not None else p.l_closed[0]))
@@ -563,8 +570,16 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
         if head.state == "seated":
             v, r_on, r_off, v_off = (float(a[0]) for a in (p.v_on, p.r_on, p.r_off, p.v_off))
             seated = float(p.l_closed[0]) if p.curves is None else p.coil_closed[0]
-            th, ih, oh, t_cut, i_cut, starts = hold_samples(
-                peak_time, i0, v, r_on, r_off, v_off, seated, duty, frequency, hold_time, points)
+            if mixed is not None:   # the seated coil's three segments (mixed_waveform)
+                from .mixed_waveform import mixed_hold_samples, segments_of
+
+                th, ih, oh, _, t_cut, i_cut, fast_part = mixed_hold_samples(
+                    peak_time, i0, segments_of(seated, v, r_on, r_off, mixed, i0), duty, frequency,
+                    hold_time, points, mixed)
+                starts = np.array([i0, float(np.min(ih))])   # the lowest current of the hold
+            else:
+                th, ih, oh, t_cut, i_cut, starts = hold_samples(
+                    peak_time, i0, v, r_on, r_off, v_off, seated, duty, frequency, hold_time, points)
             if split and t_cut - t_on < t_open < t_cut and not np.any(th == t_open):
                 # a sample where the bypass opens, inside the last on-time
                 at = int(np.searchsorted(th, t_open))
@@ -596,7 +611,14 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     extra = None
     if bridge:   # the four switches' states; the fast decay's voltage from the final turn-off
         fast_v, _ = _switch_and_sense(drive, fast, supply, current, on)
-        v_sw, sense, extra = _bridge_columns(drive, supply, tr.time, current, on, fast_v, t_off)
+        all_open = None
+        if t_fast > 0:   # and in the hold's fast parts (mixed decay): the off samples up to
+            # and including each fast part's end (the time into the period, to rounding)
+            into = tr.time - peak_time - np.floor((tr.time - peak_time) / period) * period
+            all_open = ((tr.time > peak_time) & (tr.time < t_off) & (on == 0) & (into > 0.5 * t_on)
+                        & (into <= t_on + t_fast * (1 + 1e-9)))
+        v_sw, sense, extra = _bridge_columns(drive, supply, tr.time, current, on, fast_v, t_off,
+                                             all_open=all_open)
     if split:
         bypass = (tr.time < t_open).astype(np.int8)
         fast_v, _ = _switch_and_sense(drive, fast, supply, current, on)
