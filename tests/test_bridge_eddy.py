@@ -19,11 +19,14 @@ import json
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from conftest import EXAMPLES, run_cli
 from coildrive.model import bridge, eddy, flux
 from coildrive.model.eddy import EddyCoil
 from coildrive.model.rl import decay_time, rise_current, rise_time
+from test_bridge import bridges
 from test_eddy_coil import _example_drive, check_synthetic
 from test_reference_ngspice_bridge import (EDGE, L_COIL, R_COIL, R_SENSE, R_SW, STAGGER, V_D,
                                            V_SUP, _netlist, _on_until, _pulse)
@@ -200,6 +203,28 @@ def test_pump_up_of_a_saturating_branch_matches_scipy():
     v2 = float(sol.y[1, -1]) - 2 * V_D
     assert float(pu.v2) == pytest.approx(v2, rel=1e-5), (float(pu.v2), v2)
     assert float(pu.zero_time) == pytest.approx(float(sol.t[-1]), rel=1e-3)
+
+
+@settings(max_examples=60, deadline=None)
+@given(bridges, st.floats(10.0, 1e5), st.floats(1e-6, 1e-2), st.floats(1.0001, 100.0))
+def test_eddy_bridge_properties(b, r_e, capacitance, more):
+    """Hypothesis, with an eddy resistance across the branch: the fast decay releases (the
+    flux to the drop-out current) sooner than the slow one from the same magnetising
+    current, and more bulk capacitance never raises the pump-up (common practice: the
+    same charge on a larger capacitor lifts it less)."""
+    coil = EddyCoil(np.array(b["inductance"]), np.array(r_e))
+    r_on = b["r_coil"] + 2 * b["r_switch"] + b["r_sense"]
+    i0 = b["fraction"] * b["supply"] / r_on
+    i_drop = b["drop"] * i0
+    fast = decay_time(i_drop, i0, b["r_coil"] + b["r_sense"], b["supply"] + 2 * b["v_diode"], coil)
+    slow_r = b["r_coil"] + 2 * b["r_switch"] + (b["r_sense"] if b["inline"] else 0.0)
+    slow = eddy.branch_time(coil.magnetising, i0, i_drop, 0.0, eddy.thevenin(0.0, slow_r, r_e)[1])
+    assert float(fast) < float(slow)
+    r = b["r_coil"] + b["r_sense"]
+    small = bridge.pump_up(i0, b["supply"], capacitance, r, coil, b["v_diode"])
+    large = bridge.pump_up(i0, b["supply"], capacitance * more, r, coil, b["v_diode"])
+    assert float(small.delta_v) >= 0.0 and np.isfinite(small.delta_v)
+    assert float(large.delta_v) <= float(small.delta_v) * (1 + 1e-9) + 1e-12
 
 
 # ------------------------------------------------------------- the design and its outputs

@@ -214,22 +214,28 @@ def _flux_mixed_steady_state(duty, frequency, v_on, r_on, r_off, coil: FluxCoil,
     t_on = duty * period
     t_fast = mixed.fraction * (period - t_on)
     t_slow = period - t_on - t_fast
-    # no slow part (a fraction of 1, or full duty): the two-segment orbit on the fast path
-    two = orbit(coil, t_on, period - t_on, v_on, r_on, r_f, v_f)
-    three = np.flatnonzero((t_slow > 0).ravel())
+    shape = np.shape(t_on)
+    has_slow = (t_slow > 0).ravel()
     fields = ("i_min", "i_max", "dcm", "conduction_off", "charge_on", "square_on")
-    out = {f: np.array(getattr(two, f), dtype=bool if f == "dcm" else float).ravel() for f in fields}
-    q_f, s_f = np.array(two.charge_off, float).ravel(), np.array(two.square_off, float).ravel()
-    q_s, s_s = np.zeros_like(q_f), np.zeros_like(s_f)
+    out = {f: np.zeros(has_slow.size, bool if f == "dcm" else float) for f in fields}
+    q_f, s_f, q_s, s_s = (np.zeros(has_slow.size) for _ in range(4))
+
+    def pick(x, k):
+        return np.ravel(x)[k]
+    two = np.flatnonzero(~has_slow)
+    if two.size:   # no slow part (a fraction of 1, or full duty): the fast path's two segments
+        o = orbit(FluxCoil(coil.curve, pick(coil.scale, two)), pick(t_on, two), pick(period - t_on, two),
+                  pick(v_on, two), pick(r_on, two), pick(r_f, two), pick(v_f, two))
+        for f in fields:
+            out[f][two] = getattr(o, f)
+        q_f[two], s_f[two] = o.charge_off, o.square_off
+    three = np.flatnonzero(has_slow)
     if three.size:
-        def pick(x):
-            return np.ravel(x)[three]
-        m = mixed_orbit(FluxCoil(coil.curve, pick(coil.scale)), pick(t_on), pick(t_fast),
-                        pick(t_slow), pick(v_on), pick(r_on), pick(r_off), pick(v_f), pick(r_f))
+        m = mixed_orbit(FluxCoil(coil.curve, pick(coil.scale, three)),
+                        *(pick(x, three) for x in (t_on, t_fast, t_slow, v_on, r_on, r_off, v_f, r_f)))
         for f in fields:
             out[f][three] = getattr(m, f)
         q_f[three], s_f[three], q_s[three], s_s[three] = m.charge_fast, m.square_fast, m.charge_slow, m.square_slow
-    shape = np.shape(t_on)
     o = SimpleNamespace(**{f: v.reshape(shape) for f, v in out.items()})
     q_f, s_f, q_s, s_s = (x.reshape(shape) for x in (q_f, s_f, q_s, s_s))
     mean = (o.charge_on + q_f + q_s) / period
