@@ -19,6 +19,7 @@ import pytest
 
 from coildrive.design import design
 from coildrive.model.circuit import loop
+from coildrive.model.pwm import pwm_steady_state
 from coildrive.model.rl import decay_integrals
 from coildrive.model.waveform import armature_actuation
 from test_bridge_armature import TEMP, V_BUS, Reference, _drive
@@ -202,3 +203,32 @@ def test_design_runs_the_armature_s_mixed_hold(tmp_path):
     cap = synth_design_capture(d, actuations=1, hold_time=0.05, noise_codes=1.0, seed=5)
     report = check_capture(cap, d)
     assert report.ok, [(i.name, i.status, i.detail) for i in report.items]
+
+
+def test_two_curves_hold_on_the_seated_curve_s_mixed_orbit(tmp_path):
+    """With the coil's two curves (open and seated, docs/coil-model.md) the seated mixed
+    hold runs on the seated curve's tabulated segments: after 20 ms it sits on the exact
+    three-segment orbit (model.flux_mixed, checked against ngspice elsewhere), its last
+    period's top and bottom within 0.5 %."""
+    from coildrive.config import load_drive
+    from test_armature_curves import _fmt, open_table, seated_table
+
+    _mixed(tmp_path)
+    path = tmp_path / "arm.toml"
+    (o_i, o_psi), (s_i, s_psi) = open_table(), seated_table()
+    text = "\n".join(ln for ln in path.read_text().splitlines()
+                     if not ln.startswith(("inductance_open", "inductance_closed"))) + "\n"
+    assert 'inductance = "70 mH"' in text
+    text = text.replace('inductance = "70 mH"', f"flux_current = [{_fmt(o_i)}]\nflux_linkage = [{_fmt(o_psi)}]\n"
+                        f"seated_current = [{_fmt(s_i)}]\nseated_linkage = [{_fmt(s_psi)}]")
+    path.write_text(text)
+    drive = load_drive(path)
+    duty = 0.45
+    w = armature_actuation(drive, V_BUS, TEMP, 0.008, duty, FREQ, 0.02)
+    assert w.events["seat"] < 0.008, "precondition: seated in the peak"
+    lp = loop(drive, V_BUS, TEMP)
+    ss = pwm_steady_state(duty, FREQ, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance, lp.mixed)
+    t_off = w.events["off"]
+    last = (w.time > t_off - 1.0 / FREQ) & (w.time <= t_off)
+    assert float(w.current[last].max()) == pytest.approx(float(ss.i_max), rel=0.005)
+    assert float(w.current[last].min()) == pytest.approx(float(ss.i_min), rel=0.005)
