@@ -29,7 +29,7 @@ from coildrive.model.rl import decay_time, rise_current, rise_time
 from test_bridge import bridges
 from test_eddy_coil import _example_drive, check_synthetic
 from test_reference_ngspice_bridge import (EDGE, L_COIL, R_COIL, R_SENSE, R_SW, STAGGER, V_D,
-                                           V_SUP, _netlist, _on_until, _pulse)
+                                           V_SUP, _netlist, _on_until)
 from ngspice_run import run
 
 BRIDGE = EXAMPLES / "dosing-valve-bridge-24v.toml"

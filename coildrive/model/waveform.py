@@ -134,13 +134,13 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
         return _split_actuation(drive, lp, supply, coil_temp, peak_time, duty, frequency,
                                 hold_time, r_factor, l_factor, points, label)
     if isinstance(lp.inductance, FluxCoil) and lp.mixed is not None:   # a curve's mixed decay
-        from .mixed_waveform import CurveSegments
+        from .mixed_waveform import segments_of
 
         coil = one_point(lp.inductance)
         v, r_on, r_off = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off))
         tp = np.linspace(0.0, peak_time, 40 * points + 1)
         peak = rise_current(tp, 0.0, v, r_on, coil)
-        seg = CurveSegments(coil, v, r_on, r_off, lp.mixed, float(peak[-1]))
+        seg = segments_of(coil, v, r_on, r_off, lp.mixed, float(peak[-1]))
         return _mixed_actuation(drive, lp, supply, coil_temp, peak_time, float(peak[-1]), duty, frequency,
                                 hold_time, r_factor, l_factor, points, label, [tp], [peak],
                                 [np.ones_like(tp)], seg)
@@ -155,11 +155,11 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
     # Peak: full on from zero.
     i0 = peak_samples(peak_time, v, r_on, ind, big, ts, cs, ons, drive)
     if lp.mixed is not None:
-        from .mixed_waveform import LinearSegments
+        from .mixed_waveform import segments_of
 
         return _mixed_actuation(drive, lp, supply, coil_temp, peak_time, i0, duty, frequency,
                                 hold_time, r_factor, l_factor, points, label, ts, cs, ons,
-                                LinearSegments(v, r_on, r_off, ind, lp.mixed))
+                                segments_of(ind, v, r_on, r_off, lp.mixed, i0))
 
     # Hold: per-period start currents by scalar recurrence, then vectorised sampling.
     t_hold, i_hold, on_hold, t_offedge, i_off, _ = hold_samples(
@@ -573,20 +573,21 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
             if mixed is not None:   # the seated coil's three segments (mixed_waveform)
                 from .mixed_waveform import mixed_hold_samples, segments_of
 
-                th, ih, oh, _, t_cut, i_cut, fast_part = mixed_hold_samples(
+                th, ih, oh, _, t_cut, i_cut, _ = mixed_hold_samples(
                     peak_time, i0, segments_of(seated, v, r_on, r_off, mixed, i0), duty, frequency,
                     hold_time, points, mixed)
-                starts = np.array([i0, float(np.min(ih))])   # the lowest current of the hold
+                lowest = min(i0, float(np.min(ih)))   # the current dips lowest at a period's start
             else:
                 th, ih, oh, t_cut, i_cut, starts = hold_samples(
                     peak_time, i0, v, r_on, r_off, v_off, seated, duty, frequency, hold_time, points)
+                lowest = float(np.min(starts))
             if split and t_cut - t_on < t_open < t_cut and not np.any(th == t_open):
                 # a sample where the bypass opens, inside the last on-time
                 at = int(np.searchsorted(th, t_open))
                 i_open = float(rise_current(t_open - (t_cut - t_on), float(starts[-1]), v, r_on,
                                             seated))
                 th, ih, oh = np.insert(th, at, t_open), np.insert(ih, at, i_open), np.insert(oh, at, 1.0)
-            if float(np.min(starts)) >= float(p.stay_current[0]):
+            if lowest >= float(p.stay_current[0]):
                 tail = simulate(p, release_segments(t_cut), state="seated",
                                 flux=float(p.flux_closed(i_cut)[0]), method=method, points=points,
                                 stop=lambda r: r.state == "open" and not r.live, t0=t_cut,
