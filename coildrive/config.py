@@ -1222,16 +1222,6 @@ def _read_table(s: _Section, current_key: str, flux_key: str):
     return columns[0], columns[1]
 
 
-def _flux_curve_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel,
-                       switch: Switch, thermal: Thermal, duty: "Duty | None") -> None:
-    """What a flux-linkage curve does not yet work with: one line naming the key."""
-    if not coil.flux_current:
-        return
-    if switch.topology == "full_bridge" and hold.fast_fraction > 0:
-        raise InputError(source, "hold.fast_fraction", "mixed decay with a flux-linkage curve "
-                         "(coil.flux_current) is not supported yet: leave it out (slow decay)")
-
-
 def _eddy_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel, switch: Switch,
                  thermal: Thermal, duty: "Duty | None", supply: Supply) -> None:
     """What an eddy-current term does not yet work with: one line naming the key."""
@@ -1244,9 +1234,9 @@ def _eddy_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel, swit
     if hold.mode == "current":
         raise InputError(source, "hold.mode", f"\"current\" with {what} is not supported yet: "
                          "use mode = \"voltage\"")
-    if switch.topology == "full_bridge":
-        raise InputError(source, "switch.topology", f"\"full_bridge\" with {what} is not "
-                         "supported yet")
+    if switch.topology == "full_bridge" and hold.fast_fraction > 0:
+        raise InputError(source, "hold.fast_fraction", f"mixed decay with {what} on a full bridge is "
+                         "not supported yet: leave it out (slow decay in the hold)")
     if freewheel.split_decay and freewheel.bypass_lead < 0:
         raise InputError(source, "freewheel.bypass_lead", f"a bypass that opens after the final "
                          f"turn-off with {what} is not supported yet: open it at or before the "
@@ -1548,11 +1538,11 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,
-                  supply: Supply, hold: Hold, armature: Armature | None) -> None:
+                  supply: Supply, hold: Hold) -> None:
     """What a full bridge needs: its freewheel path is its switches' body diodes (type
     "diode", no split decay: the bridge decays slowly and fast by itself), a voltage-mode
-    hold (or a latching coil's pulses), no mixed decay under a moving armature, and with a
-    supply that cannot sink the returned energy, the bulk capacitance. (The supply's ``sink`` and
+    hold (or a latching coil's pulses), and with a supply that cannot sink the returned
+    energy, the bulk capacitance. (The supply's ``sink`` and
     ``capacitance`` keys mean nothing to the other topologies, which return no energy.)"""
     if switch.topology != "full_bridge":
         if hold.fast_fraction > 0:
@@ -1572,10 +1562,6 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
     if hold.mode not in ("voltage", "latch"):
         raise InputError(source, "hold.mode", f"{hold.mode!r} with a full bridge: coildrive designs a "
                          "full bridge's hold in voltage mode only, expected mode = \"voltage\"")
-    if armature is not None and hold.fast_fraction > 0:
-        raise InputError(source, "hold.fast_fraction", f"{hold.fast_fraction:g} with a moving [armature]: "
-                         "the armature on a full bridge holds on the slow decay only, expected 0 or "
-                         "the key left out")
     if not supply.sink and not supply.capacitance > 0:
         raise InputError(source, "supply.capacitance", "missing: with sink = false the returned "
                          "energy lands on the bulk capacitance, expected its value (e.g. \"470 uF\")")
@@ -1828,11 +1814,10 @@ def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_
         fw_board = {k: v for k, v in fw_board.items() if k == "type" or v}
     merged, origins = _merged(brd.source, fw_board, source, fw_drive)
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
-    _check_bridge(source, origins, switch, freewheel, supply, hold, armature)
+    _check_bridge(source, origins, switch, freewheel, supply, hold)
     _eddy_limits(source, coil, hold, freewheel, switch, thermal, duty, supply)
     _check_droop(source, coil, switch, supply, armature, hold)
     _check_boost(source, origins, coil, switch, freewheel, supply, hold, pull_in, armature, duty)
-    _flux_curve_limits(source, coil, hold, freewheel, switch, thermal, duty)
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:
         raise InputError(origins.get("clamp_voltage", source), "freewheel.clamp_voltage",
                          f"{freewheel.clamp_voltage:g} V is not above supply.max ({supply.max:g} V): "

@@ -49,9 +49,7 @@ def _one_line_error(path, key):
     ('capacitance = "220 uF"       # bulk capacitance on the bridge\'s bus\n', '', "supply.capacitance"),
     ('[hold]\n', '[hold]\nmode = "current"\n', "hold.mode"),
     ('[hold]\n', '[hold]\nregulation = "closed_loop"\n', "switch.topology"),
-    # a moving armature designs on a bridge (tests/test_bridge_armature.py) but not with mixed decay
-    ('[hold]\n', '[armature]\ninductance_open = "30 mH"\ninductance_closed = "80 mH"\nstroke = "1.5 mm"\n'
-     'mass = "6 g"\nspring_preload = "0.6 N"\nspring_rate = "200 N/m"\n\n[hold]\nfast_fraction = 0.3\n', "hold.fast_fraction"),
+    # (a moving armature designs on a bridge, with mixed decay too: tests/test_bridge_armature*.py)
 ])
 def test_what_a_full_bridge_refuses_is_one_line(tmp_path, old, new, key):
     line = _one_line_error(_variant(tmp_path, old, new), key)

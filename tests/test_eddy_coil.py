@@ -64,8 +64,7 @@ def test_file_errors_name_the_key(tmp_path, extra, key, words):
     assert "\n" not in line and key in line and words in line, line
 
 
-@pytest.mark.parametrize("example, key", [("dosing-valve-bridge-24v", "switch.topology"),
-                                          ("dosing-valve-closed-loop", "hold.regulation")])
+@pytest.mark.parametrize("example, key", [("dosing-valve-closed-loop", "hold.regulation")])
 def test_unmodelled_combinations_are_refused_in_one_line(tmp_path, example, key):
     path = _example_drive(tmp_path, 'eddy_resistance = "300 ohm"', EXAMPLES / f"{example}.toml")
     r = run_cli("design", str(path))

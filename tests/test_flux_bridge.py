@@ -1,5 +1,5 @@
-"""A saturating coil (flux-linkage curve) on a full bridge: the design, the command line,
-the refusal that is left, and the generated driver in the loop.
+"""A saturating coil (flux-linkage curve) on a full bridge: the design, the command line
+and the generated driver in the loop (mixed decay with a curve: tests/test_flux_mixed.py).
 
 The physics of the bridge's paths with a curve (the fast decay's time and the energy it
 returns to the supply, the slow decay, the slow-decay hold's periodic orbit, `simulate`'s
@@ -63,18 +63,6 @@ def test_design_json_returns_the_fast_decays_charge_times_the_bus(tmp_path):
     coil = loop(drive, 24.0, 20.0, l_factor=1.0 + drive.coil.inductance_tolerance).inductance
     stored = float(np.ravel(flux.energy(coil, top))[0])
     assert 0.2 * stored < b["returned_per_release_j"] < stored, (b["returned_per_release_j"], stored)
-
-
-def test_mixed_decay_with_a_curve_is_refused_in_one_line(tmp_path):
-    # the mixed-decay orbit is a linear coil's
-    path = bridge_curve(tmp_path)
-    path.write_text(path.read_text().replace("[hold]\n", "[hold]\nfast_fraction = 0.3\n", 1))
-    key = "hold.fast_fraction"
-    r = run_cli("design", str(path))
-    assert r.returncode == 2, (r.stdout, r.stderr)
-    lines = r.stderr.strip().splitlines()
-    assert len(lines) == 1 and f"{key}:" in lines[0] and "flux-linkage curve" in lines[0], r.stderr
-    assert "Traceback" not in r.stderr
 
 
 def test_pump_up_of_a_curve_converges_and_is_the_rlc_for_a_straight_line():

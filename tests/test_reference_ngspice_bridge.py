@@ -318,21 +318,27 @@ def _mixed_gates(t_on, t_fast, period):
             4: f"PULSE(1 0 {t_on + STAGGER!r} {EDGE} {EDGE} {q4_open!r} {period!r})"}
 
 
-@pytest.mark.parametrize("duty,fraction,inline", [(0.3, 0.2, False), (0.3, 0.2, True), (0.05, 1.0, True)],
-                         ids=["ccm-common-return", "ccm-inline", "dcm-all-fast"])
-def test_mixed_decay_orbit_matches_ngspice(tmp_path, duty, fraction, inline):
+@pytest.mark.parametrize("duty,fraction,inline,kind", [
+    (0.3, 0.2, False, "linear"), (0.3, 0.2, True, "linear"), (0.05, 1.0, True, "linear"),
+    (0.45, 0.3, False, "curve"), (0.05, 0.5, False, "curve")],
+    ids=["ccm-common-return", "ccm-inline", "dcm-all-fast", "curve-ccm", "curve-dcm"])
+def test_mixed_decay_orbit_matches_ngspice(tmp_path, duty, fraction, inline, kind):
     """The hold's exact orbit with a fraction of each off-time fast (model.pwm's
-    mixed_steady_state) against the bridge driven with that gate pattern, started on the
-    model's orbit: the period's lowest and highest current, its mean, and the energy the
-    supply takes back in one period, within 1 %."""
+    mixed_steady_state; with the saturating curve, model.flux_mixed's three-segment orbit)
+    against the bridge driven with that gate pattern, started on the model's orbit (the
+    flux node at ``psi(i_min)`` for the curve): the period's lowest and highest current,
+    its mean, and the energy the supply takes back in one period, within 1 %; and the
+    period's energy balance (conservation: the supply's on-time energy less what the fast
+    part returns is the heat of the copper, the switches and the diodes)."""
     from coildrive.model.pwm import MixedDecay, pwm_steady_state
 
+    coil = COILS[kind]
     freq = 20e3
     period = 1.0 / freq
     r_on = R_COIL + 2 * R_SW + R_SENSE
     r_slow = R_COIL + 2 * R_SW + (R_SENSE if inline else 0.0)
     mixed = MixedDecay(fraction, R_COIL + R_SENSE, V_SUP + 2 * V_D)
-    ss = pwm_steady_state(duty, freq, V_SUP, r_on, r_slow, 0.0, L_COIL, mixed=mixed)
+    ss = pwm_steady_state(duty, freq, V_SUP, r_on, r_slow, 0.0, coil, mixed=mixed)
     t_on = duty * period
     t_fast = fraction * (period - t_on)
     n = 4
@@ -347,7 +353,13 @@ def test_mixed_decay_orbit_matches_ngspice(tmp_path, duty, fraction, inline):
     text = _netlist("bridge-mixed", _mixed_gates(t_on, t_fast, period), n * period, step, measures,
                     inline=inline)
     text = text.replace("IC=0\n", f"IC={float(ss.i_min)!r}\n")
+    if kind == "curve":
+        psi0 = float(np.ravel(flux.linkage(coil, float(ss.i_min)))[0])
+        text = _coil_netlist(text, coil).replace("CPHI phi 0 1 IC=0", f"CPHI phi 0 1 IC={psi0!r}")
     res = run(tmp_path, "bridge-mixed", text)
+    print(f"mixed orbit ({kind}, D {duty}, m {fraction}) vs ngspice: top {float(ss.i_max):.6e}/{res['imax']:.6e}, "
+          f"bottom {float(ss.i_min):.6e}/{res['imin']:.6e}, mean {float(ss.mean):.6e}/{res['iavg']:.6e} A, "
+          f"back {V_SUP * float(ss.charge_fast):.6e}/{res['eback']:.6e} J")
     # ngspice: the orbit's top, bottom and mean within 1 % (the bottom of a DCM orbit is 0)
     assert res["imax"] == pytest.approx(float(ss.i_max), rel=0.01), (res["imax"], float(ss.i_max))
     assert res["iavg"] == pytest.approx(float(ss.mean), rel=0.01), (res["iavg"], float(ss.mean))
@@ -356,6 +368,10 @@ def test_mixed_decay_orbit_matches_ngspice(tmp_path, duty, fraction, inline):
     back = V_SUP * float(ss.charge_fast)
     assert res["eback"] == pytest.approx(back, rel=0.01), (res["eback"], back)
     assert bool(ss.dcm) == (duty == 0.05)
+    r_fast = R_COIL + R_SENSE
+    heat = (r_on * float(ss.square_on) + r_fast * float(ss.square_fast)
+            + r_slow * (float(ss.square_off) - float(ss.square_fast)) + 2 * V_D * float(ss.charge_fast))
+    assert V_SUP * float(ss.charge_on) - back == pytest.approx(heat, rel=1e-9)
 
 
 def test_slow_decay_hold_orbit_of_a_curve_matches_ngspice(tmp_path):

@@ -246,6 +246,19 @@ def _waveform_crossing(w, level: float, start: float, rising: bool) -> float | N
     return float(t[k - 1] + frac * (t[k] - t[k - 1]) - start)
 
 
+def _waveform_spread_ripple(w, frequency: float) -> float:
+    """The ripple (A) the capture's analysis reads off ``w``'s last whole hold period:
+    ``sqrt(12)`` times the standard deviation of the current over it, sampled evenly in
+    time (:func:`coildrive.bench.analysis` takes a triangle's peak-to-peak from its spread).
+    With an eddy term the terminal current steps at each edge, so the waveform is no
+    triangle and its peak-to-peak is not what that statistic gives: the like figure is
+    the same statistic of the model."""
+    t_off = w.events["off"]
+    period = 1.0 / frequency
+    grid = t_off - period + (np.arange(2000) + 0.5) * period / 2000
+    return float(np.sqrt(12.0) * np.std(np.interp(grid, np.asarray(w.time), np.asarray(w.current))))
+
+
 def predict(design, point: OperatingPoint, hold_time: float) -> tuple[dict, object]:
     """Predicted figures (SI) at ``point`` with the design's setting, and the model waveform
     of one actuation with ``hold_time`` s of hold."""
@@ -284,6 +297,8 @@ def predict(design, point: OperatingPoint, hold_time: float) -> tuple[dict, obje
         # a current are read off the model waveform instead (its terminal current)
         pred["pull_in_time_s"] = _waveform_crossing(w, drive.pull_in.current, 0.0, True)
         pred["release_time_s"] = _waveform_crossing(w, drive.release.current, w.events["off"], False)
+    if drive.coil.eddy_resistance:
+        pred["hold_ripple_a"] = _waveform_spread_ripple(w, freq)
     if drive.armature is not None:   # the seat from the dip
         pin = getattr(getattr(res, "armature", None), "pull_in", None)
         dip = getattr(pin, "dip_time", None)

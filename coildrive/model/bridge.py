@@ -40,6 +40,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from . import flux
+from .eddy import EddyCoil
 from .flux import FluxCoil
 from . import rlc
 from .rl import decay_integrals, decay_time
@@ -156,8 +157,12 @@ def pump_up(i0, v1, capacitance, r_off, inductance, v_diode) -> PumpUp:
     * critically damped: ``i = e^(-alpha t) (i0 - alpha (i0 + alpha a) t)``.
 
     A :class:`~coildrive.model.flux.FluxCoil` ``inductance`` (a saturating coil) has no
-    closed form: :func:`_flux_pump_up`.
+    closed form: :func:`_flux_pump_up`; nor has an
+    :class:`~coildrive.model.eddy.EddyCoil` (an eddy resistance across the branch):
+    :func:`_eddy_pump_up`, where ``i0`` is the magnetising current at the turn-off.
     """
+    if isinstance(inductance, EddyCoil):
+        return _eddy_pump_up(i0, v1, capacitance, r_off, inductance, v_diode)
     if isinstance(inductance, FluxCoil):
         return _flux_pump_up(i0, v1, capacitance, r_off, inductance, v_diode)
     i0, v1, c = (np.asarray(x, float) for x in (i0, v1, capacitance))
@@ -215,6 +220,71 @@ def _flux_pump_up(i0, v1, capacitance, r_off, coil: FluxCoil, v_diode, steps: in
         t = t + h / 6.0 * (a_t + 2.0 * b_t + 2.0 * c_t + d_t)
     q = c * (v - v1)
     return PumpUp(v, v - v1, 0.5 * c * (v**2 - v1**2), t, q)
+
+
+def _eddy_pump_up(i0, v1, capacitance, r_off, coil: EddyCoil, v_diode, steps: int = PUMP_STEPS) -> PumpUp:
+    """:func:`pump_up` with an eddy resistance ``R_e`` across the magnetising branch (a
+    line or a curve, :mod:`coildrive.model.eddy`). With ``u = v + 2 V_d`` the terminal
+    current is ``i = max(0, (R_e i_m - u) / (R + R_e))`` (the body diodes block once it
+    reaches zero), the branch ``dpsi/dt = R_e (i - i_m)`` and the capacitor ``C du/dt = i``.
+    The magnetising current falls monotonically (``dpsi/dt < 0`` for ``i_m > 0``), so it is
+    the independent variable from ``i0`` to 0, as in :func:`_flux_pump_up`:
+
+        du/di_m = i L_d(i_m) / (C R_e (i - i_m)),    dt/di_m = L_d(i_m) / (R_e (i - i_m))
+
+    by the classical fourth-order Runge-Kutta method in ``steps`` equal steps. Once the
+    diodes block ``du/di_m = 0``: the bus stays where the conduction left it and the flux
+    decays through ``R_e`` alone (its energy is heat in the core, none returns). The
+    right-hand side is continuous there (``i`` falls through zero), only its slope jumps,
+    so the step holding the block costs ``O(h^2)`` of it, not an order of the method;
+    ``dt/di_m`` is the conducting loop's throughout (only its part before the block is
+    kept).
+    ``zero_time`` is the time to the block (the zero of ``R_e i_m - u``, interpolated
+    linearly within its step). ngspice (a resistor across the inductor, body diodes and the
+    bulk capacitor) checks it in tests/test_bridge_eddy.py."""
+    mag = coil.magnetising
+    arrays = np.broadcast_arrays(*(np.asarray(x, float) for x in
+                                   (i0, v1, capacitance, r_off, v_diode, coil.resistance)))
+    i0, v1, c, r, vd, re_ = arrays
+    if isinstance(mag, FluxCoil):
+        s = np.broadcast_to(np.asarray(mag.scale, float), i0.shape)
+
+        def ind(i):
+            return s * mag.curve.incremental(i)
+    else:
+        ell = np.broadcast_to(np.asarray(mag, float), i0.shape)
+
+        def ind(i):
+            return ell
+    h = i0 / steps   # the magnetising current falls by h a step
+
+    def slopes(i_m, u):   # (du, dt) per unit of falling magnetising current
+        i = np.maximum(re_ * i_m - u, 0.0) / (r + re_)
+        # the conducting loop's dt/di_m (R_e (i_m - i) = (R_e / (R + R_e)) (R i_m + u) > 0);
+        # after the block only the bus matters, and it stays
+        dt = ind(i_m) * (r + re_) / (re_ * (r * i_m + u))
+        return i * dt / c, dt, i
+
+    u = v1 + 2.0 * vd
+    t = np.zeros_like(u)
+    t_block = np.full(u.shape, np.nan)
+    g_prev = re_ * i0 - u
+    for k in range(steps):
+        i_m = i0 - k * h
+        a_u, a_t, _ = slopes(i_m, u)
+        b_u, b_t, _ = slopes(i_m - 0.5 * h, u + 0.5 * h * a_u)
+        c_u, c_t, _ = slopes(i_m - 0.5 * h, u + 0.5 * h * b_u)
+        d_u, d_t, _ = slopes(np.maximum(i_m - h, 0.0), u + h * c_u)
+        u_next = u + h / 6.0 * (a_u + 2.0 * b_u + 2.0 * c_u + d_u)
+        g = re_ * np.maximum(i_m - h, 0.0) - u_next
+        dt = h / 6.0 * (a_t + 2.0 * b_t + 2.0 * c_t + d_t) if k < steps - 1 else 0.0 * t
+        cross = np.isnan(t_block) & (g <= 0.0) & (g_prev > 0.0)
+        frac = np.where(cross, g_prev / np.where(cross, g_prev - g, 1.0), 0.0)
+        t_block = np.where(cross, t + frac * dt, t_block)
+        u, t, g_prev = u_next, t + dt, g
+    t_block = np.where(np.isnan(t_block), 0.0, t_block)   # a step that blocks at once
+    v = u - 2.0 * vd
+    return PumpUp(v, v - v1, 0.5 * c * (v**2 - v1**2), t_block, c * (v - v1))
 
 
 #: The bridge's four switches, in the order of the header's switch bits (bit 0 first):

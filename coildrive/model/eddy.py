@@ -42,6 +42,7 @@ import numpy as np
 from . import flux
 from .exponential import segment_integrals
 from .flux import FluxCoil
+from .roots import falling_root
 
 
 @dataclass(frozen=True, eq=False)
@@ -473,23 +474,7 @@ def _blocked_fixed_point(e, t_on, t_off, von_t, ron_t, voff_t, roff_t, ib, itera
         still = branch_current(mag, np.where(late, 0.0, t_off), top, -voff_t, roff_t)
         return np.where(late, after, still) - x
 
-    lo, hi = np.zeros_like(ib), ib.copy()
-    g_lo, g_hi = g(lo), g(hi)
-    side = np.zeros(ib.size, int)
-    x = hi.copy()
-    for _ in range(iterations):
-        with np.errstate(divide="ignore", invalid="ignore"):
-            x = hi - g_hi * (hi - lo) / (g_hi - g_lo)
-        x = np.where(np.isfinite(x) & (x > lo) & (x < hi), x, 0.5 * (lo + hi))
-        gx = g(x)
-        above = gx > 0   # the fixed point lies above x
-        g_hi = np.where(above & (side == 1), 0.5 * g_hi, g_hi)
-        g_lo = np.where(~above & (side == -1), 0.5 * g_lo, g_lo)
-        lo, g_lo = np.where(above, x, lo), np.where(above, gx, g_lo)
-        hi, g_hi = np.where(above, hi, x), np.where(above, g_hi, gx)
-        side = np.where(above, 1, -1)
-        if np.all((hi - lo <= 1e-13 * np.maximum(ib, 1e-300)) | (gx == 0)):
-            break
+    x, _, hi, _, g_hi = falling_root(g, ib, iterations)
     return np.where(g_hi == 0, hi, x)
 
 

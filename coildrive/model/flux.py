@@ -37,6 +37,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .roots import falling_root
+
 #: Gauss-Legendre nodes per table interval.
 _NODES = 8
 _GL_X, _GL_W = np.polynomial.legendre.leggauss(_NODES)
@@ -373,23 +375,8 @@ def _bisect_orbit(coil, t_on, t_off, v_on, r_on, r_off, v_off, top, iterations: 
     def g(a):
         return time(coil, current(coil, t_on, a, v_on, r_on), a, -v_off, r_off) / t_off - 1.0
 
-    lo, hi = np.zeros_like(top), top.copy()
-    g_lo, g_hi = g(lo), np.full_like(top, -1.0)   # g(top) < 0: from the top it only falls
-    side = np.zeros(top.size, int)
-    for _ in range(iterations):
-        with np.errstate(divide="ignore", invalid="ignore"):
-            x = hi - g_hi * (hi - lo) / (g_hi - g_lo)
-        x = np.where(np.isfinite(x) & (x > lo) & (x < hi), x, 0.5 * (lo + hi))
-        gx = g(x)
-        above = gx > 0   # the orbit lies above x
-        # Illinois: halve the stale end's value when the same end is kept twice
-        g_hi = np.where(above & (side == 1), 0.5 * g_hi, g_hi)
-        g_lo = np.where(~above & (side == -1), 0.5 * g_lo, g_lo)
-        lo, g_lo = np.where(above, x, lo), np.where(above, gx, g_lo)
-        hi, g_hi = np.where(above, hi, x), np.where(above, g_hi, gx)
-        side = np.where(above, 1, -1)
-        if np.all((hi - lo <= 1e-13 * top) | (np.abs(gx) <= 1e-13)):
-            break
+    # g(top) < 0: from the top it only falls
+    _, lo, hi, g_lo, g_hi = falling_root(g, top, iterations, g_top=-1.0, small=1e-13)
     a = np.where(np.abs(g_lo) < np.abs(g_hi), lo, hi)
     return a, current(coil, t_on, a, v_on, r_on)
 

@@ -1,29 +1,83 @@
 """A mixed-decay hold as samples: each PWM period on, fast, slow (a full bridge,
 :class:`~coildrive.model.pwm.MixedDecay`).
 
-The closed-form segments of :mod:`coildrive.model.rl`: the on-time rises towards
-``V / R_on``; the fast part decays against ``V_f = V_bus + 2 V_d`` through ``R_f`` and stops at
-zero (the body diodes block); the slow part decays through ``R_off`` with no opposing
-voltage. Every edge is a sample, each segment gets ``points`` samples in between, and a
+The on-time rises towards ``V / R_on``; the fast part decays against ``V_f = V_bus + 2
+V_d`` through ``R_f`` and stops at zero (the body diodes block); the slow part decays
+through ``R_off`` with no opposing voltage: the closed-form segments of
+:mod:`coildrive.model.rl` for a linear coil (:class:`LinearSegments`), the exact
+tabulated ones of a saturating coil (:class:`CurveSegments`). Every edge is a sample, each segment gets ``points`` samples in between, and a
 current that dies in the fast part gets a sample at its zero. Units: s, A, V, ohm, H.
 """
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 
+from .flux import FluxCoil
 from .pwm import MixedDecay
 from .rl import decay_current, decay_time, rise_current
 
 
-def mixed_hold_samples(t_start: float, i0: float, v: float, r_on: float, r_off: float,
-                       ind: float, duty: float, frequency: float, hold_time: float, points: int,
-                       mixed: MixedDecay):
+class LinearSegments:
+    """The three segment kinds of a linear coil of ``ind`` H in closed form
+    (:mod:`coildrive.model.rl`): on (``v`` V through ``r_on``), fast (against the bridge's
+    ``V_f`` through ``R_f``, stopping at zero) and slow (through ``r_off``)."""
+
+    def __init__(self, v: float, r_on: float, r_off: float, ind: float, mixed: MixedDecay):
+        self.v, self.r_on, self.r_off, self.ind = v, r_on, r_off, ind
+        self.r_f, self.v_f = float(mixed.r_fast), float(mixed.v_fast)
+
+    def rise(self, i0, t):
+        return rise_current(t, i0, self.v, self.r_on, self.ind)
+
+    def fast(self, i0, t):
+        return np.maximum(decay_current(t, i0, self.r_f, self.v_f, self.ind), 0.0)
+
+    def fast_zero(self, i0):
+        return decay_time(0.0, i0, self.r_f, self.v_f, self.ind)
+
+    def slow(self, i0, t):
+        return i0 * np.exp(-t * self.r_off / self.ind)
+
+
+class CurveSegments:
+    """The same three segment kinds of a saturating coil (one point's
+    :class:`~coildrive.model.flux.FluxCoil`), tabulated once per kind
+    (:class:`~coildrive.model.flux_waveform.Track`: exact times at 20,000 currents)."""
+
+    def __init__(self, coil, v: float, r_on: float, r_off: float, mixed: MixedDecay, top: float):
+        from .flux_waveform import Track
+
+        self._fast = Track(coil, v, r_on, float(mixed.r_fast), float(mixed.v_fast), top)
+        self._slow = Track(coil, v, r_on, r_off, 0.0, top)
+
+    def rise(self, i0, t):
+        return self._fast.rise(i0, t)
+
+    def fast(self, i0, t):
+        return self._fast.decay(i0, t)
+
+    def fast_zero(self, i0):
+        return self._fast.to_zero(i0)
+
+    def slow(self, i0, t):
+        return self._slow.decay(i0, t)
+
+
+def segments_of(inductance, v: float, r_on: float, r_off: float, mixed: MixedDecay, top: float):
+    """The segments of one operating point's coil: ``inductance`` H (a linear coil) or a
+    :class:`~coildrive.model.flux.FluxCoil` (tabulated up to ``top`` A and the on-loop's
+    asymptote)."""
+    if isinstance(inductance, FluxCoil):
+        return CurveSegments(inductance, v, r_on, r_off, mixed, top)
+    return LinearSegments(v, r_on, r_off, float(inductance), mixed)
+
+
+def mixed_hold_samples(t_start: float, i0: float, seg, duty: float, frequency: float,
+                       hold_time: float, points: int, mixed: MixedDecay):
     """Samples of a mixed-decay hold from ``t_start`` s and ``i0`` A: whole periods (at
     least one), the last cut at the end of its on-time (the turn-off, at the top of the
-    ripple).
+    ripple); ``seg``: the segments (:class:`LinearSegments` or :class:`CurveSegments`).
 
     Returns ``(time, current, switch_on, fast, t_off, i_off, fast_part)``: the samples
     after ``t_start`` (s, A, 0/1, and 1 where the current flows in the fast path), the
@@ -31,35 +85,30 @@ def mixed_hold_samples(t_start: float, i0: float, v: float, r_on: float, r_off: 
     switches open: from just after the on-time's end up to and including the sample at
     the fast part's end; the slow part follows).
     """
-    r_f, v_f = float(mixed.r_fast), float(mixed.v_fast)
     period = 1.0 / frequency
     n = max(1, int(round(hold_time * frequency)))
     t_on = duty * period
     t_fast = mixed.fraction * (period - t_on)
     t_slow = period - t_on - t_fast
-    e_on = math.exp(-t_on * r_on / ind)
-    e_f, e_s = math.exp(-t_fast * r_f / ind), math.exp(-t_slow * r_off / ind)
-    a, b = v / r_on, v_f / r_f
     starts = np.empty(n)
     i = i0
     for k in range(n):
         starts[k] = i
-        top = a + (i - a) * e_on
-        i = max((top + b) * e_f - b, 0.0) * e_s
+        i = float(seg.slow(seg.fast(seg.rise(i, t_on), t_fast), t_slow))
     frac = np.linspace(0.0, 1.0, points + 1)
     on_t = np.broadcast_to(frac[None, :] * t_on, (n, points + 1))
-    on_i = rise_current(on_t, starts[:, None], v, r_on, ind)
+    on_i = seg.rise(starts[:, None], on_t)
     tops = on_i[:, -1]
     # the fast part: points samples up to its end, one more at the zero where it dies
     fast_t = np.broadcast_to(frac[None, 1:] * t_fast, (n, points))
-    t_zero = decay_time(0.0, tops, r_f, v_f, ind)
+    t_zero = seg.fast_zero(tops)
     extra = np.where(t_zero < t_fast, t_zero, t_fast * (points - 0.5) / points)
     fast_t = np.sort(np.concatenate([fast_t, extra[:, None]], axis=1), axis=1)
-    fast_i = np.maximum(decay_current(fast_t, tops[:, None], r_f, v_f, ind), 0.0)
-    i_f = np.maximum((tops + b) * e_f - b, 0.0)
+    fast_i = seg.fast(tops[:, None], fast_t)
+    i_f = seg.fast(tops, t_fast)
     # the slow part: its end is the next period's first sample
     slow_t = np.broadcast_to(frac[None, 1:-1] * t_slow, (n, points - 1))
-    slow_i = i_f[:, None] * np.exp(-slow_t * r_off / ind)
+    slow_i = seg.slow(i_f[:, None], slow_t)
     t0 = t_start + np.arange(n)[:, None] * period
     period_t = np.concatenate([t0 + on_t, t0 + t_on + fast_t, t0 + t_on + t_fast + slow_t], axis=1)
     period_i = np.concatenate([on_i, fast_i, slow_i], axis=1)

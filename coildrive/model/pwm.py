@@ -28,6 +28,7 @@ block) and every period starts from zero. ``m = 0`` is the plain two-segment orb
 from __future__ import annotations
 
 from dataclasses import dataclass
+from types import SimpleNamespace
 
 import numpy as np
 
@@ -158,6 +159,8 @@ def pwm_steady_state(duty, frequency, v_on, r_on, r_off, v_off, inductance,
     if isinstance(inductance, EddyCoil):
         return _eddy_steady_state(duty, frequency, v_on, r_on, r_off, v_off, inductance)
     if mixed is not None and mixed.fraction > 0:
+        if isinstance(inductance, FluxCoil):
+            return _flux_mixed_steady_state(duty, frequency, v_on, r_on, r_off, inductance, mixed)
         return mixed_steady_state(duty, frequency, v_on, r_on, r_off, inductance, mixed)
     if isinstance(inductance, FluxCoil):
         return _flux_steady_state(duty, frequency, v_on, r_on, r_off, v_off, inductance)
@@ -196,6 +199,54 @@ def _flux_steady_state(duty, frequency, v_on, r_on, r_off, v_off, coil: FluxCoil
                           ripple=o.i_max - o.i_min, dcm=o.dcm, conduction_off=o.conduction_off,
                           period=period, charge_on=o.charge_on, square_on=o.square_on,
                           charge_off=o.charge_off, square_off=o.square_off)
+
+
+def _flux_mixed_steady_state(duty, frequency, v_on, r_on, r_off, coil: FluxCoil,
+                             mixed: MixedDecay) -> PwmSteadyState:
+    """:func:`mixed_steady_state` of a saturating coil, from its exact three-segment orbit
+    (:func:`coildrive.model.flux_mixed.mixed_orbit`); a fraction of 1 (no slow part) is
+    the two-segment orbit on the fast path (:func:`coildrive.model.flux.orbit`), and
+    full duty the on-segment alone."""
+    from .flux_mixed import mixed_orbit
+
+    duty, frequency, v_on, r_on, r_off, r_f, v_f, scale = np.broadcast_arrays(
+        *(np.asarray(x, float) for x in (duty, frequency, v_on, r_on, r_off, mixed.r_fast,
+                                         mixed.v_fast, coil.scale)))
+    coil = coil.with_scale(scale)
+    period = 1.0 / frequency
+    t_on = duty * period
+    t_fast = mixed.fraction * (period - t_on)
+    t_slow = period - t_on - t_fast
+    shape = np.shape(t_on)
+    has_slow = (t_slow > 0).ravel()
+    fields = ("i_min", "i_max", "dcm", "conduction_off", "charge_on", "square_on")
+    out = {f: np.zeros(has_slow.size, bool if f == "dcm" else float) for f in fields}
+    q_f, s_f, q_s, s_s = (np.zeros(has_slow.size) for _ in range(4))
+
+    def pick(x, k):
+        return np.ravel(x)[k]
+    two = np.flatnonzero(~has_slow)
+    if two.size:   # no slow part (a fraction of 1, or full duty): the fast path's two segments
+        o = orbit(FluxCoil(coil.curve, pick(coil.scale, two)), pick(t_on, two), pick(period - t_on, two),
+                  pick(v_on, two), pick(r_on, two), pick(r_f, two), pick(v_f, two))
+        for f in fields:
+            out[f][two] = getattr(o, f)
+        q_f[two], s_f[two] = o.charge_off, o.square_off
+    three = np.flatnonzero(has_slow)
+    if three.size:
+        m = mixed_orbit(FluxCoil(coil.curve, pick(coil.scale, three)),
+                        *(pick(x, three) for x in (t_on, t_fast, t_slow, v_on, r_on, r_off, v_f, r_f)))
+        for f in fields:
+            out[f][three] = getattr(m, f)
+        q_f[three], s_f[three], q_s[three], s_s[three] = m.charge_fast, m.square_fast, m.charge_slow, m.square_slow
+    o = SimpleNamespace(**{f: v.reshape(shape) for f, v in out.items()})
+    q_f, s_f, q_s, s_s = (x.reshape(shape) for x in (q_f, s_f, q_s, s_s))
+    mean = (o.charge_on + q_f + q_s) / period
+    rms = np.sqrt(np.maximum((o.square_on + s_f + s_s) / period, 0.0))
+    return PwmSteadyState(i_min=o.i_min, i_max=o.i_max, mean=mean, rms=rms, ripple=o.i_max - o.i_min,
+                          dcm=o.dcm, conduction_off=o.conduction_off, period=period,
+                          charge_on=o.charge_on, square_on=o.square_on, charge_off=q_f + q_s,
+                          square_off=s_f + s_s, charge_fast=q_f, square_fast=s_f)
 
 
 def coil_heat(ss: PwmSteadyState, r_coil):

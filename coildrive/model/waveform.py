@@ -23,7 +23,7 @@ import numpy as np
 
 from ..config import Drive
 from . import bridge
-from .circuit import full_bridge, loop, split_decay
+from .circuit import full_bridge, loop, split_decay, two_paths
 from . import boost as boost_model
 from . import supply as bus_model
 from .eddy import EddyCoil
@@ -135,12 +135,23 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
                                   hold_time, r_factor, l_factor, points, label)
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
     if isinstance(lp.inductance, EddyCoil):   # an eddy-current term: its own sampling
-        fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") if split_decay(drive) else None
+        fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") if two_paths(drive) else None
         return _eddy_actuation(drive, lp, supply, peak_time, duty, frequency, hold_time,
                                points, label, fast)
     if split_decay(drive):
         return _split_actuation(drive, lp, supply, coil_temp, peak_time, duty, frequency,
                                 hold_time, r_factor, l_factor, points, label)
+    if isinstance(lp.inductance, FluxCoil) and lp.mixed is not None:   # a curve's mixed decay
+        from .mixed_waveform import segments_of
+
+        coil = one_point(lp.inductance)
+        v, r_on, r_off = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off))
+        tp = np.linspace(0.0, peak_time, 40 * points + 1)
+        peak = rise_current(tp, 0.0, v, r_on, coil)
+        seg = segments_of(coil, v, r_on, r_off, lp.mixed, float(peak[-1]))
+        return _mixed_actuation(drive, lp, supply, coil_temp, peak_time, float(peak[-1]), duty, frequency,
+                                hold_time, r_factor, l_factor, points, label, [tp], [peak],
+                                [np.ones_like(tp)], seg)
     if isinstance(lp.inductance, FluxCoil):   # a saturating coil: its own sampling
         fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") if full_bridge(drive) else lp
         return _flux_actuation(drive, lp, supply, peak_time, duty, frequency, hold_time,
@@ -152,8 +163,11 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
     # Peak: full on from zero.
     i0 = peak_samples(peak_time, v, r_on, ind, big, ts, cs, ons, drive)
     if lp.mixed is not None:
+        from .mixed_waveform import segments_of
+
         return _mixed_actuation(drive, lp, supply, coil_temp, peak_time, i0, duty, frequency,
-                                hold_time, r_factor, l_factor, points, label, ts, cs, ons)
+                                hold_time, r_factor, l_factor, points, label, ts, cs, ons,
+                                segments_of(ind, v, r_on, r_off, lp.mixed, i0))
 
     # Hold: per-period start currents by scalar recurrence, then vectorised sampling.
     t_hold, i_hold, on_hold, t_offedge, i_off, _ = hold_samples(
@@ -186,16 +200,16 @@ def nominal_boost(drive: Drive, r_on: float, ind: float) -> boost_model.Boost:
 def _mixed_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_time: float,
                      i0: float, duty: float, frequency: float, hold_time: float, r_factor: float,
                      l_factor: float, points: int, label: str, ts: list, cs: list,
-                     ons: list) -> Waveform:
+                     ons: list, seg) -> Waveform:
     """:func:`actuation`'s hold and release with a full bridge's mixed decay
-    (:mod:`coildrive.model.mixed_waveform`): the switches see the fast path's voltage
-    while the current flows into the bus; the per-switch columns and the coil voltage
-    follow the three segments (on: Q1 + Q4, fast: all four open, slow: Q2 + Q4)."""
+    (:mod:`coildrive.model.mixed_waveform`, its segments ``seg``: a linear coil's or a
+    curve's): the switches see the fast path's voltage while the current flows into the
+    bus; the per-switch columns and the coil voltage follow the three segments (on: Q1 +
+    Q4, fast: all four open, slow: Q2 + Q4)."""
     from .mixed_waveform import mixed_hold_samples
 
     t_hold, i_hold, on_hold, fast_hold, t_off, i_off, fast_part = mixed_hold_samples(
-        peak_time, i0, float(lp.v_on), float(lp.r_on), float(lp.r_off), float(lp.inductance),
-        duty, frequency, hold_time, points, lp.mixed)
+        peak_time, i0, seg, duty, frequency, hold_time, points, lp.mixed)
     n_peak = sum(len(t) for t in ts)
     ts.append(t_hold)
     cs.append(i_hold)
@@ -253,10 +267,14 @@ def _eddy_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: flo
     ``current`` is the terminal current, ``magnetising_current`` the flux's. ``fast``:
     split decay's release loop (the hold through ``lp``, the slow one), the bypass
     opening ``freewheel.bypass_lead`` s before the final turn-off (no earlier than the
-    last on-time's start)."""
+    last on-time's start); or a full bridge's fast decay from the final turn-off (the
+    per-switch columns and the coil voltage of :func:`_bridge_columns`; once the body
+    diodes block, the coil's terminals show the flux's decay through ``R_e``, ``-R_e
+    i_m``)."""
     from .eddy_waveform import actuation as eddy_samples
 
-    lead = drive.freewheel.bypass_lead if fast is not None else 0.0
+    bridged = full_bridge(drive)
+    lead = drive.freewheel.bypass_lead if fast is not None and not bridged else 0.0
     ts, cs, ms, ons, t_cut, t_zero = eddy_samples(drive, lp, peak_time, duty, frequency,
                                                    hold_time, points, fast, lead)
     order = np.argsort(np.concatenate(ts), kind="stable")   # the bypass's sample, in place
@@ -275,6 +293,15 @@ def _eddy_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: flo
     on = np.concatenate(ons).astype(np.int8)
     v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
     events = {"on": 0.0, "hold": peak_time, "off": t_cut, "zero": t_zero}
+    magnetising = np.concatenate(ms)
+    if bridged:
+        v_sw = np.where(time > t_cut, _switch_and_sense(drive, fast, supply, current, on)[0], v_sw)
+        v_sw, sense, extra = _bridge_columns(drive, supply, time, current, on, v_sw, t_cut)
+        r_e = float(np.ravel(lp.inductance.resistance)[0])
+        blocked = (time > t_cut) & (current <= 0.0)
+        extra["coil_voltage"] = np.where(blocked, -r_e * magnetising, extra["coil_voltage"])
+        return Waveform(time, current, on, v_sw, sense, events, label,
+                        magnetising_current=magnetising, **extra)
     extra = {}
     if fast is not None:   # split decay: the fast path's switch voltage once the bypass opens
         t_open = max(t_cut - lead, t_cut - duty / frequency)
@@ -284,7 +311,7 @@ def _eddy_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: flo
         extra["bypass_on"] = bypass
     return Waveform(time, current, on, v_sw, sense, events, label,
                     **node_columns(drive, supply, current, on, v_sw),
-                    magnetising_current=np.concatenate(ms), **extra)
+                    magnetising_current=magnetising, **extra)
 
 
 def peak_samples(peak_time: float, v: float, r_on: float, ind: float, big: int,
@@ -512,6 +539,10 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     # the bypass opens inside the last on-time (no earlier than its start) or after the
     # turn-off; without split decay there is no bypass
     t_open = (t_off - min(lead, t_on) if lead >= 0 else t_off + lag) if split else math.inf
+    # mixed decay (a bridge's hold.fast_fraction): each off-time starts fast (all four open,
+    # the release's path into the bus) and ends slow
+    mixed = lp.mixed
+    t_fast = mixed.fraction * (period - t_on) if mixed is not None else 0.0
     schedule = []
     if peak_time > 0:
         schedule.append((peak_time, True, big))
@@ -522,7 +553,10 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
                 schedule.append((t_open, True, points))  # a sample where the bypass opens
             schedule.append((start + t_on, True, points))
         if k < n - 1 and t_on < period:
-            schedule.append((start + period, False, points))
+            if t_fast > 0:
+                schedule.append((start + t_on + t_fast, False, points, "release"))
+            if t_on + t_fast < period:
+                schedule.append((start + period, False, points))
     i_max = float(p.v_on[0] / p.r_on[0])
     t_un = float(decay_time(min(float(p.stay_current[0]), i_max), i_max, p.r_off[0], p.v_off[0],
                             p.coil_closed[0] if p.curves is not None or p.eddy is not None
@@ -552,15 +586,24 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
         if head.state == "seated":
             v, r_on, r_off, v_off = (float(a[0]) for a in (p.v_on, p.r_on, p.r_off, p.v_off))
             seated = float(p.l_closed[0]) if p.curves is None else p.coil_closed[0]
-            th, ih, oh, t_cut, i_cut, starts = hold_samples(
-                peak_time, i0, v, r_on, r_off, v_off, seated, duty, frequency, hold_time, points)
+            if mixed is not None:   # the seated coil's three segments (mixed_waveform)
+                from .mixed_waveform import mixed_hold_samples, segments_of
+
+                th, ih, oh, _, t_cut, i_cut, _ = mixed_hold_samples(
+                    peak_time, i0, segments_of(seated, v, r_on, r_off, mixed, i0), duty, frequency,
+                    hold_time, points, mixed)
+                lowest = min(i0, float(np.min(ih)))   # the current dips lowest at a period's start
+            else:
+                th, ih, oh, t_cut, i_cut, starts = hold_samples(
+                    peak_time, i0, v, r_on, r_off, v_off, seated, duty, frequency, hold_time, points)
+                lowest = float(np.min(starts))
             if split and t_cut - t_on < t_open < t_cut and not np.any(th == t_open):
                 # a sample where the bypass opens, inside the last on-time
                 at = int(np.searchsorted(th, t_open))
                 i_open = float(rise_current(t_open - (t_cut - t_on), float(starts[-1]), v, r_on,
                                             seated))
                 th, ih, oh = np.insert(th, at, t_open), np.insert(ih, at, i_open), np.insert(oh, at, 1.0)
-            if float(np.min(starts)) >= float(p.stay_current[0]):
+            if lowest >= float(p.stay_current[0]):
                 tail = simulate(p, release_segments(t_cut), state="seated",
                                 flux=float(p.flux_closed(i_cut)[0]), method=method, points=points,
                                 stop=lambda r: r.state == "open" and not r.live, t0=t_cut,
@@ -602,7 +645,14 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     extra = None
     if bridge:   # the four switches' states; the fast decay's voltage from the final turn-off
         fast_v, _ = _switch_and_sense(drive, fast, supply, current, on)
-        v_sw, sense, extra = _bridge_columns(drive, supply, tr.time, current, on, fast_v, t_off)
+        all_open = None
+        if t_fast > 0:   # and in the hold's fast parts (mixed decay): the off samples up to
+            # and including each fast part's end (the time into the period, to rounding)
+            into = tr.time - peak_time - np.floor((tr.time - peak_time) / period) * period
+            all_open = ((tr.time > peak_time) & (tr.time < t_off) & (on == 0) & (into > 0.5 * t_on)
+                        & (into <= t_on + t_fast * (1 + 1e-9)))
+        v_sw, sense, extra = _bridge_columns(drive, supply, tr.time, current, on, fast_v, t_off,
+                                             all_open=all_open)
     if split:
         bypass = (tr.time < t_open).astype(np.int8)
         fast_v, _ = _switch_and_sense(drive, fast, supply, current, on)
