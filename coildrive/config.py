@@ -1254,9 +1254,6 @@ def _eddy_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel, swit
         raise InputError(source, "freewheel.bypass_lead", f"a bypass that opens after the final "
                          f"turn-off with {what} is not supported yet: open it at or before the "
                          "turn-off (bypass_lead >= 0)")
-    if supply.droops:
-        raise InputError(source, "supply.source_resistance", f"a drooping bus with {what} is "
-                         "not supported yet: leave source_resistance out")
 
 
 def _mechanics_currents(arm: Armature, coil: Coil) -> dict[str, float]:

@@ -13,6 +13,7 @@ import numpy as np
 
 from ..config import Drive
 from ..model import rl
+from ..model.eddy import EddyCoil
 from ..model.circuit import split_decay
 from ..model import supply as bus_model
 from . import boost
@@ -33,9 +34,14 @@ def through_clamp(drive: Drive) -> bool:
 
 
 def bus_at(drive: Drive, lp, inductance) -> bus_model.Bus:
-    """The drooping bus of the peak at the points of the loop ``lp`` (:func:`coildrive.model.supply.bus`)."""
+    """The drooping bus of the peak at the points of the loop ``lp`` (:func:`coildrive.model.supply.bus`);
+    with an eddy term (an :class:`~coildrive.model.eddy.EddyCoil`) its magnetising branch
+    and eddy resistance."""
     s = drive.supply
-    return bus_model.bus(lp.v_on, s.source_resistance, s.capacitance, lp.r_on, inductance)
+    r_e = None
+    if isinstance(inductance, EddyCoil):
+        inductance, r_e = inductance.magnetising, inductance.resistance
+    return bus_model.bus(lp.v_on, s.source_resistance, s.capacitance, lp.r_on, inductance, r_e)
 
 
 def rise_time(drive: Drive, lp, i_target, inductance) -> np.ndarray:
@@ -89,7 +95,9 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
     v_low, when = bus_model.lowest_bus(peak, b)
     clamp = through_clamp(drive)
     if clamp:
-        i_top = np.maximum(bus_model.current(peak, b), res.hold.i_max)
+        i_end, v_end = bus_model.state(peak, b)
+        top = res.hold.i_max if res.hold.terminal_max is None else res.hold.terminal_max
+        i_top = np.maximum(bus_model.terminal(i_end, v_end, b), top)
         floor = bus_model.bus_floor(lp.v_on, s.source_resistance, i_top)
         later = floor < v_low
         v_low, when = np.where(later, floor, v_low), np.where(later, peak, when)
