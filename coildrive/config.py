@@ -1449,8 +1449,8 @@ def _open_loop_refusal(hold: Hold, armature: Armature | None) -> tuple[str, str]
 
 def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
                  armature: Armature | None, hold: Hold) -> None:
-    """What the drooping bus (``supply.source_resistance``) is modelled with: a linear coil,
-    one switch (low or high side) or a full bridge (a voltage-mode, slow-decay, open-loop
+    """What the drooping bus (``supply.source_resistance``) is modelled with: a linear coil
+    (or an eddy-current term, or a flux-linkage curve, not both), one switch (low or high side) or a full bridge (a voltage-mode, slow-decay, open-loop
     hold, on a supply that sinks: its fast decay into the bus is
     :mod:`coildrive.model.bus_decay`), and no moving armature. Any hold (the droop is the peak's;
     a regulated hold takes it out of the hold) and any freewheel path (a clamp's release,
@@ -1459,8 +1459,11 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     if not supply.droops:
         return
     why = None
-    if coil.flux_current:
-        key, why = "coil.flux_current", "a flux-linkage curve"
+    if coil.flux_current and coil.eddy_resistance:
+        key = "coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance"
+        why = "a flux-linkage curve and an eddy-current term together"
+    elif coil.flux_current and switch.topology == "full_bridge":
+        key, why = "coil.flux_current", "a flux-linkage curve on a full bridge"
     elif switch.topology == "full_bridge" and not supply.sink:
         key, why = "supply.sink", "a full bridge whose supply cannot sink (sink = false)"
     elif switch.topology == "full_bridge" and hold.fast_fraction > 0:
@@ -1473,7 +1476,8 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
         key, why = "armature", "a moving armature"
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
-                         f"{why}: expected source_resistance left out, or a linear coil and no [armature] "
+                         f"{why}: expected source_resistance left out, or a coil with a curve or an eddy term "
+                         "(not both), no [armature] "
                          "(a full bridge: a voltage-mode, slow-decay, open-loop hold, sink = true)")
 
 

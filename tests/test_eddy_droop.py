@@ -25,7 +25,7 @@ import numpy as np
 import pytest
 
 from conftest import EXAMPLES, run_cli
-from test_supply_droop import spice_droop
+from test_supply_droop import simulated_peak, spice_droop
 
 from coildrive.model import supply as bus_model
 
@@ -131,15 +131,10 @@ def test_design_and_simulate_end_to_end(tmp_path):
     # simulate: the terminal current steps to V/(R + R_e) at switch-on (the bus has not
     # moved yet), the magnetising current starts at zero and follows the closed form
     from coildrive.config import load_drive
-    from coildrive.model.circuit import loop
 
     path = _drive(tmp_path, "0.5 ohm")
-    csv = tmp_path / "sim.csv"
-    r = run_cli("simulate", path, "--supply", "9.6", "--coil-temp", "80", "--csv", str(csv))
-    assert r.returncode == 0, r.stderr
-    rows = np.loadtxt(csv, delimiter=",", skiprows=1, max_rows=3)
+    rows, lp = simulated_peak(tmp_path, path, 9.6, 80.0, 3)
     drive = load_drive(path)
-    lp = loop(drive, 9.6, 80.0, 1.0, 1.0)
     b = bus_model.bus(9.6, 0.5, 470e-6, float(lp.r_on), drive.coil.inductance, 300.0)
     assert rows[0, 5] == 0.0 and rows[0, 1] == pytest.approx(9.6 / (float(lp.r_on) + 300.0), rel=1e-8)
     m, v = bus_model.state(rows[:, 0], b)
