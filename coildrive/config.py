@@ -1450,9 +1450,10 @@ def _open_loop_refusal(hold: Hold, armature: Armature | None) -> tuple[str, str]
 def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
                  armature: Armature | None, hold: Hold) -> None:
     """What the drooping bus (``supply.source_resistance``) is modelled with: a linear coil
-    (or an eddy-current term, or a flux-linkage curve, not both), one switch (low or high side) or a full bridge (a voltage-mode, slow-decay, open-loop
-    hold, on a supply that sinks: its fast decay into the bus is
-    :mod:`coildrive.model.bus_decay`), and no moving armature. Any hold (the droop is the peak's;
+    (or an eddy-current term, or a flux-linkage curve, not both), one switch (low or high
+    side) or a full bridge (a voltage-mode, slow-decay, open-loop hold; its fast decay
+    into the bus is :mod:`coildrive.model.bus_decay`, on a supply that cannot sink with
+    the feed blocking), and no moving armature. Any hold (the droop is the peak's;
     a regulated hold takes it out of the hold) and any freewheel path (a clamp's release,
     which draws from the bus, is computed on the undrooped bus: the safe side). Anything
     else is refused in one line rather than designed on a stiff bus."""
@@ -1464,8 +1465,6 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
         why = "a flux-linkage curve and an eddy-current term together"
     elif coil.flux_current and switch.topology == "full_bridge":
         key, why = "coil.flux_current", "a flux-linkage curve on a full bridge"
-    elif switch.topology == "full_bridge" and not supply.sink:
-        key, why = "supply.sink", "a full bridge whose supply cannot sink (sink = false)"
     elif switch.topology == "full_bridge" and hold.fast_fraction > 0:
         key, why = "hold.fast_fraction", "a full bridge's mixed-decay hold"
     elif switch.topology == "full_bridge" and hold.mode != "voltage":
@@ -1478,7 +1477,7 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
                          f"{why}: expected source_resistance left out, or a coil with a curve or an eddy term "
                          "(not both), no [armature] "
-                         "(a full bridge: a voltage-mode, slow-decay, open-loop hold, sink = true)")
+                         "(a full bridge: a voltage-mode, slow-decay, open-loop hold)")
 
 
 def _read_boost(s: "_Section") -> tuple:

@@ -26,13 +26,12 @@ How it is stepped, and why:
   leaves the piece in a step, the cubic Hermite interpolant of the step locates the
   crossing, the step is taken again up to it and the rest of it with the next piece.
   Every step is then smooth and the whole run is fourth order (measured in
-  tests/test_flux_droop.py). The same approach, stepping piece by piece with the
-  current at the pieces' ends, is what a table's kinks ask of any one-step method.
-* **Steps.** Uniform in time over a horizon that covers the rise to within ``e^-25`` of
-  the steady current ``V_s/(R + R_s)``, in two stretches (:func:`_phases`): the rise,
-  finely, then the rest at the fastest time constant's pace. Hand-written, not scipy's ``solve_ivp``: one
-  fixed grid serves every corner in one pass (no per-point calls, no scipy import on the
-  design's path), and ETDRK4 is not among scipy's methods.
+  tests/test_flux_droop.py).
+* **Steps.** Uniform in two stretches (:func:`_phases`): the rise, finely, then -- only
+  when a question needs it -- on to within ``e^-25`` of the steady current ``V_s/(R +
+  R_s)`` at the fastest time constant's pace. Hand-written, not scipy's ``solve_ivp``:
+  one fixed grid serves every corner in one pass (no per-point calls, no scipy import on
+  the design's path), and ETDRK4 is not among scipy's methods.
 
 The current is the coil current (the step response of this passive circuit rises to its
 first maximum; the record holds the whole horizon, so a later crossing is found too).
