@@ -110,7 +110,8 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
     clamp = through_clamp(drive)
     if clamp:
         i_end, v_end = model.state(peak, b)
-        top = res.hold.i_max if res.hold.terminal_max is None else res.hold.terminal_max
+        top = getattr(res.hold, "terminal_max", None)
+        top = res.hold.i_max if top is None else top
         if model is bus_model:
             i_end = bus_model.terminal(i_end, v_end, b)
         i_top = np.maximum(i_end, top)
