@@ -206,3 +206,17 @@ def test_curve_and_eddy_term_together_refused(tmp_path):
     r = run_cli("design", str(path))
     line = r.stderr.strip()
     assert r.returncode == 2 and "\n" not in line and "coil.eddy_resistance" in line, line
+
+
+def test_capacitor_less_limit():
+    # C -> 0 (R_s C = 10 ns, far below a step): the bus is V_s - R_s i, so the coil rises as
+    # on a stiff source through R + R_s (hand-worked: Thevenin), whose time is the curve's
+    # exact quadrature (coildrive/model/flux.py, checked against ngspice in
+    # tests/test_flux_ngspice.py); the capacitor delays it by about R_s C
+    coil = _coil()
+    fb = flux_bus.bus(24.0, 10.0, 1e-9, 22.0, coil)
+    t = float(flux_bus.rise_time(0.55, fb))
+    assert t == pytest.approx(float(flux.time(coil, 0.0, 0.55, 24.0, 32.0)), rel=1e-5)
+    # ... and a step 3,500 times R_s C is as good as one 16 times shorter (to 1e-9 A)
+    coarse, fine = (flux_bus.run(fb, [(n, 4e-3 / n)]) for n in (500, 8000))
+    assert abs(coarse.i[-1] - fine.i[-1]) < 1e-9

@@ -15,10 +15,14 @@ How it is stepped, and why:
 * **Exponential time differencing** (ETDRK4, Cox & Matthews, J. Comput. Phys. 176 (2002)
   430, their eq. 26). The bus relaxes through ``R_s C``, which on a stiff source (a few
   mohm, a few hundred uF) is far shorter than the coil's rise: an explicit Runge-Kutta
-  step would have to follow it. ETDRK4 takes the bus's own decay ``-v/(R_s C)`` exactly
-  (the ``phi`` functions below) and the rest -- the coil, the source, the coil's draw --
-  at fourth order; on the current (no linear part) it is the classical fourth-order
-  Runge-Kutta method.
+  step would have to follow it. The bus is stepped as its departure from the
+  capacitor-less bus, ``w = v - (V_s - R_s i)``: ``dw/dt = -w/(R_s C) + R_s di/dt`` and
+  ``L_d di/dt = V_s - (R + R_s) i + w``. ETDRK4 takes ``w``'s own decay exactly (the
+  ``phi`` functions below) and the rest at fourth order; on the current (no linear
+  part) it is the classical fourth-order Runge-Kutta method. ``w`` is small where
+  ``R_s C`` is short (it follows the smooth ``R_s di/dt``), so a step far longer than
+  ``R_s C`` stays accurate there (stepping the bus itself, the error of its large,
+  slaved value fell to first order in that limit).
 * **Events at the table's points.** ``L_d`` is the PCHIP interpolant's derivative: a
   quadratic on each table piece whose slope jumps at the points, so a step across a
   point is only second-order accurate there. Each step uses one piece's polynomial
@@ -194,17 +198,18 @@ def run(fb: FluxBus, phases=None, start: Record | None = None) -> Record:
     last = base.size - 1
     scale, r, r_s, c, v_s = fb.coil.scale, fb.r, fb.r_s, fb.c, fb.v_s
     lam = -1.0 / (r_s * c)                            # the bus's own decay, 1/s
-    src = v_s / (r_s * c)
+    g = r + r_s
 
     def piece(k):
         """Piece ``k``'s ends and its incremental inductance's coefficients x scale."""
         cc = coef[:, k]
         return base[k], top[k], 3 * cc[0] * scale, 2 * cc[1] * scale, cc[2] * scale
 
-    def rates(i, v, p):
-        """``(di/dt, the bus's rate without its own decay)`` with piece ``p``'s polynomial."""
+    def rates(i, w, p):
+        """``(di/dt, dw/dt without w's own decay)`` with piece ``p``'s polynomial."""
         d = i - p[0]
-        return (v - r * i) / ((p[2] * d + p[3]) * d + p[4]), src - i / c
+        di = (v_s - g * i + w) / ((p[2] * d + p[3]) * d + p[4])
+        return di, r_s * di
 
     def weights(h):
         z = lam * h
@@ -212,52 +217,57 @@ def run(fb: FluxBus, phases=None, start: Record | None = None) -> Record:
         return (np.exp(z), np.exp(0.5 * z), _phi(0.5 * z)[0], p1 - 3 * p2 + 4 * p3, p2 - 2 * p3,
                 -p2 + 4 * p3)
 
-    def step(i, v, p, h, w, n0):
-        """One ETDRK4 step of ``h`` s (``w`` its weights, ``n0`` the rates at its start)."""
-        e, e2, q1, f1, f2, f3 = w
+    def step(i, w, p, h, wt, n0):
+        """One ETDRK4 step of ``h`` s (``wt`` its weights, ``n0`` the rates at its start)."""
+        e, e2, q1, f1, f2, f3 = wt
         hh, qh = 0.5 * h, 0.5 * h * q1
-        ni0, nv0 = n0
-        ai, av = i + hh * ni0, e2 * v + qh * nv0
-        nia, nva = rates(ai, av, p)
-        bi, bv = i + hh * nia, e2 * v + qh * nva
-        nib, nvb = rates(bi, bv, p)
-        ci, cv_ = ai + hh * (2 * nib - ni0), e2 * av + qh * (2 * nvb - nv0)
-        nic, nvc = rates(ci, cv_, p)
+        ni0, nw0 = n0
+        ai, aw = i + hh * ni0, e2 * w + qh * nw0
+        nia, nwa = rates(ai, aw, p)
+        bi, bw = i + hh * nia, e2 * w + qh * nwa
+        nib, nwb = rates(bi, bw, p)
+        ci, cw = ai + hh * (2 * nib - ni0), e2 * aw + qh * (2 * nwb - nw0)
+        nic, nwc = rates(ci, cw, p)
         return (i + h / 6.0 * (ni0 + 2 * nia + 2 * nib + nic),
-                e * v + h * (f1 * nv0 + 2 * f2 * (nva + nvb) + f3 * nvc))
+                e * w + h * (f1 * nw0 + 2 * f2 * (nwa + nwb) + f3 * nwc))
+
+    def row(t, i, w, n0):
+        """A record row: the bus ``v = V_s - R_s i + w`` and its rate ``-w/(R_s C)``."""
+        return t, i, v_s - r_s * i + w, n0[0], lam * w
 
     if start is None:
-        t, i, v, k = np.zeros_like(v_s), np.zeros_like(v_s), v_s.copy(), np.zeros(v_s.shape, int)
+        t, i, w, k = np.zeros_like(v_s), np.zeros_like(v_s), np.zeros_like(v_s), np.zeros(v_s.shape, int)
     else:
-        t, i, v, k = start.t[-1], start.i[-1], start.v[-1], start.k
+        t, i, k = start.t[-1], start.i[-1], start.k
+        w = start.v[-1] - v_s + r_s * i
     p = piece(k)
-    n0 = rates(i, v, p)
-    rec = [(t, i, v, n0[0], n0[1] + lam * v)]
+    n0 = rates(i, w, p)
+    rec = [row(t, i, w, n0)]
     for m, h_phase in phases:
         dt = np.broadcast_to(np.asarray(h_phase, float), v_s.shape)
         w_dt = weights(dt)
         for _ in range(m):
             left = dt
             for split in range(SPLITS + 1):
-                i1, v1 = step(i, v, p, left, w_dt if split == 0 else weights(left), n0)
+                i1, w1 = step(i, w, p, left, w_dt if split == 0 else weights(left), n0)
                 up = (i1 >= p[1]) & (k < last)
                 down = (i1 < p[0]) & (k > 0) & (i1 < i)
                 cross = (up | down) & (split < SPLITS)
                 if not cross.any():
-                    t, i, v = t + left, i1, v1
-                    n0 = rates(i, v, p)
-                    rec.append((t, i, v, n0[0], n0[1] + lam * v))
+                    t, i, w = t + left, i1, w1
+                    n0 = rates(i, w, p)
+                    rec.append(row(t, i, w, n0))
                     break
                 knot = np.where(up, p[1], p[0])
-                d1 = rates(i1, v1, p)[0] * left
+                d1 = rates(i1, w1, p)[0] * left
                 theta = _hermite_root(i, i1, n0[0] * left, d1, knot, cross)
                 part = np.where(cross, theta * left, left)
-                i, v = step(i, v, p, part, weights(part), n0)
+                i, w = step(i, w, p, part, weights(part), n0)
                 t = t + part
                 k = np.where(cross, np.where(up, k + 1, k - 1), k)
                 p = piece(k)
-                n0 = rates(i, v, p)
-                rec.append((t, i, v, n0[0], n0[1] + lam * v))
+                n0 = rates(i, w, p)
+                rec.append(row(t, i, w, n0))
                 left = left - part
     out = Record(*(np.array(x) for x in zip(*rec)), k=k)
     if start is None:
