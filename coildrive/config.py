@@ -1241,9 +1241,6 @@ def _eddy_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel, swit
         raise InputError(source, "freewheel.bypass_lead", f"a bypass that opens after the final "
                          f"turn-off with {what} is not supported yet: open it at or before the "
                          "turn-off (bypass_lead >= 0)")
-    if supply.droops:
-        raise InputError(source, "supply.source_resistance", f"a drooping bus with {what} is "
-                         "not supported yet: leave source_resistance out")
 
 
 def _mechanics_currents(arm: Armature, coil: Coil) -> dict[str, float]:
@@ -1439,22 +1436,24 @@ def _open_loop_refusal(hold: Hold, armature: Armature | None) -> tuple[str, str]
 
 def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
                  armature: Armature | None, hold: Hold) -> None:
-    """What the drooping bus (``supply.source_resistance``) is modelled with: a linear coil,
-    one switch (low or high side) or a full bridge (a voltage-mode, slow-decay, open-loop
-    hold, on a supply that sinks: its fast decay into the bus is
-    :mod:`coildrive.model.bus_decay`). Any hold (the droop is the peak's; a regulated hold
-    takes it out of the hold) and any freewheel path (a clamp's release, which draws from
-    the bus, is computed on the undrooped bus: the safe side). A moving armature: one
+    """What the drooping bus (``supply.source_resistance``) is modelled with: a linear coil
+    (or an eddy-current term, or a flux-linkage curve, not both), one switch (low or high
+    side) or a full bridge (a voltage-mode, slow-decay, open-loop hold; its fast decay
+    into the bus is :mod:`coildrive.model.bus_decay`, on a supply that cannot sink with
+    the feed blocking). Any hold (the droop is the peak's; a regulated hold takes it out of
+    the hold) and any freewheel path (a clamp's release, which draws from the bus, is
+    computed on the undrooped bus: the safe side). A moving armature: a linear coil, one
     switch, a voltage-mode open-loop hold (the pull-in run carries the capacitor,
     :mod:`coildrive.model.armature_runs`). Anything else is refused in one line rather
     than designed on a stiff bus."""
     if not supply.droops:
         return
     why = None
-    if coil.flux_current:
-        key, why = "coil.flux_current", "a flux-linkage curve"
-    elif switch.topology == "full_bridge" and not supply.sink:
-        key, why = "supply.sink", "a full bridge whose supply cannot sink (sink = false)"
+    if coil.flux_current and coil.eddy_resistance:
+        key = "coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance"
+        why = "a flux-linkage curve and an eddy-current term together"
+    elif coil.flux_current and switch.topology == "full_bridge":
+        key, why = "coil.flux_current", "a flux-linkage curve on a full bridge"
     elif switch.topology == "full_bridge" and hold.fast_fraction > 0:
         key, why = "hold.fast_fraction", "a full bridge's mixed-decay hold"
     elif switch.topology == "full_bridge" and hold.mode != "voltage":
@@ -1463,14 +1462,20 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
         key, why = "hold.regulation", "a full bridge with a closed-loop hold"
     elif armature is not None and switch.topology == "full_bridge":
         key, why = "armature", "a moving armature on a full bridge"
+    elif armature is not None and coil.flux_current:
+        key, why = "coil.flux_current", "a flux-linkage curve and a moving armature"
+    elif armature is not None and coil.eddy_resistance:
+        key = "coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance"
+        why = "an eddy-current term and a moving armature"
     elif armature is not None and _open_loop_refusal(hold, None):
         key, why = _open_loop_refusal(hold, None)
         why += " and a moving armature"
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
-                         f"{why}: expected source_resistance left out, or a linear coil (a full bridge: "
-                         "a voltage-mode, slow-decay, open-loop hold, sink = true, no [armature]; an "
-                         "[armature]: one switch and a voltage-mode open-loop hold)")
+                         f"{why}: expected source_resistance left out, or a coil with a curve or an "
+                         "eddy term (not both; a full bridge: a voltage-mode, slow-decay, open-loop hold, "
+                         "no [armature]; an [armature]: a linear coil, one switch and a voltage-mode "
+                         "open-loop hold)")
 
 
 def _read_boost(s: "_Section") -> tuple:

@@ -1,5 +1,5 @@
 """A full bridge on the drooping bus (``[supply] source_resistance`` + ``capacitance``,
-``sink = true``) against the outside world.
+``sink = true`` or ``false``) against the outside world.
 
 The fast decay pushes the coil's current back through two body diodes into the bus, which
 sits behind the source's resistance with the bulk capacitor across it
@@ -7,12 +7,14 @@ sits behind the source's resistance with the bulk capacitor across it
 
 * ngspice (batch mode): the element-level bridge of tests/test_reference_ngspice_bridge.py
   (voltage-controlled ``S`` switches, one-way body diodes, ``CBULK``) with a resistor
-  ``RSRC`` in the feed: the peak through two switches on the drooping bus (the current at
+  ``RSRC`` in the feed (and, for a supply that cannot sink, that file's ideal feed diode
+  ``BFEED`` after it): the peak through two switches on the drooping bus (the current at
   turn-off, the lowest bus), then the release (the drop-out and zero times, the highest bus
   and the switches' voltage), ``.meas tran`` ``FIND ... AT``, ``WHEN ... FALL=1``, ``MIN``,
   ``MAX``;
-* scipy's ``solve_ivp`` (Radau) of the decay's two equations, written afresh here, with a
-  terminal event at zero current.
+* scipy's ``solve_ivp`` (Radau) of the decay's two equations, written afresh here (the
+  feed ``max(V_s - v, 0)/R_s`` when it cannot sink), with a terminal event at zero
+  current.
 """
 
 from __future__ import annotations
@@ -23,27 +25,28 @@ import numpy as np
 import pytest
 
 from conftest import EXAMPLES, run_cli
-from ngspice_run import run
+from ngspice_run import knee, run
 
 from coildrive.model import bus_decay
 from coildrive.model import supply as bus_model
 from test_reference_ngspice_bridge import (EDGE, I_DROP, L_COIL, R_COIL, R_SENSE, R_SW, STAGGER, V_D,
                                            V_SUP, _netlist, _on_until, _pulse)
 
-#: (R_s ohm, C F): a long cable with a small capacitor (overdamped), and a battery lead
-#: with a large one (the bus rings: complex eigenvalues).
-CASES = [(1.5, 100e-6), (0.5, 4.7e-3)]
+#: (R_s ohm, C F, sink): a long cable with a small capacitor (overdamped), a battery lead
+#: with a large one (the bus rings: complex eigenvalues), and the cable behind a diode.
+CASES = [(1.5, 100e-6, True), (0.5, 4.7e-3, True), (1.5, 100e-6, False)]
 
 
 @pytest.mark.ngspice
-@pytest.mark.parametrize("r_s, c", CASES, ids=["100uF", "4700uF"])
-def test_bridge_peak_and_release_on_the_drooping_bus_match_ngspice(tmp_path, r_s, c):
+@pytest.mark.parametrize("r_s, c, sink", CASES, ids=["100uF", "4700uF", "100uF-no-sink"])
+def test_bridge_peak_and_release_on_the_drooping_bus_match_ngspice(tmp_path, r_s, c, sink):
     r_on = R_COIL + 2 * R_SW + R_SENSE
     b = bus_model.bus(V_SUP, r_s, c, r_on, L_COIL)
     t_on = 1.5 * float(bus_model.rise_time(0.55, b))
     i_on, v_on = (float(x) for x in bus_model.state(t_on, b))
     v_low = float(bus_model.lowest_bus(t_on, b)[0])
-    d = bus_decay.decay(i_on, v_on, I_DROP, V_SUP, r_s, c, R_COIL + R_SENSE, L_COIL, V_D)
+    fast = bus_decay.decay if sink else bus_decay.decay_no_sink
+    d = fast(i_on, v_on, I_DROP, V_SUP, r_s, c, R_COIL + R_SENSE, L_COIL, V_D)
     t_zero = float(d.zero_time)
     step = t_zero / 4000
     t_off = t_on + EDGE / 2 + STAGGER
@@ -56,8 +59,13 @@ def test_bridge_peak_and_release_on_the_drooping_bus_match_ngspice(tmp_path, r_s
                 f"meas tran tdrop WHEN i(VM)={I_DROP!r} FALL=1", "meas tran tzero WHEN i(VM)=1e-6 FALL=1",
                 f"meas tran vmax MAX v(bus) {after}", f"meas tran vq1max MAX vq1 {after}",
                 f"meas tran vq4max MAX vq4 {after}"]
-    text = _netlist("bridge-droop", gates, tend, step, measures, capacitance=c)
-    text = text.replace("VFEED sup bus DC 0", f"VFEED sup src DC 0\nRSRC src bus {r_s!r}")
+    text = _netlist("bridge-droop", gates, tend, step, measures, capacitance=c, sink=sink)
+    if sink:
+        text = text.replace("VFEED sup bus DC 0", f"VFEED sup src DC 0\nRSRC src bus {r_s!r}")
+    else:
+        feed = knee("BFEED", "sup", "bus", 0.0)
+        assert feed in text
+        text = text.replace(feed, f"RSRC sup src {r_s!r}\n" + knee("BFEED", "src", "bus", 0.0))
     res = run(tmp_path, "bridge-droop", text)
     print(f"bridge on a drooping bus ({r_s} ohm, {c * 1e6:g} uF) vs ngspice: i_off {i_on:.6e}/{res['ioff']:.6e} A, "
           f"lowest bus {v_low:.6e}/{res['vlow']:.6e} V, drop {float(d.drop_time):.6e}/{res['tdrop'] - t_off:.6e} s, "
@@ -67,7 +75,7 @@ def test_bridge_peak_and_release_on_the_drooping_bus_match_ngspice(tmp_path, r_s
     assert res["voff"] == pytest.approx(v_on, rel=1e-3)
     assert res["vlow"] == pytest.approx(v_low, rel=1e-3)
     # the release from the bus ngspice has at turn-off: the times within 1 % plus one step
-    d = bus_decay.decay(res["ioff"], res["voff"], I_DROP, V_SUP, r_s, c, R_COIL + R_SENSE, L_COIL, V_D)
+    d = fast(res["ioff"], res["voff"], I_DROP, V_SUP, r_s, c, R_COIL + R_SENSE, L_COIL, V_D)
     for name, t_model in (("tdrop", float(d.drop_time)), ("tzero", float(d.zero_time))):
         assert abs(res[name] - t_off - t_model) <= 0.01 * t_model + step, (name, res[name] - t_off, t_model)
     # ... the highest bus within 0.1 %, above the source (the design's fixed-bus figure)
@@ -81,14 +89,16 @@ def test_bridge_peak_and_release_on_the_drooping_bus_match_ngspice(tmp_path, r_s
         assert float(d.bus_top) + V_D - 0.01 * bound <= res[name] <= bound * 1.001, (name, res[name], bound)
 
 
+@pytest.mark.parametrize("sink", [True, False], ids=["sink", "no-sink"])
 @pytest.mark.parametrize("i0, v0, r_s, c", [(0.9, 23.0, 1.5, 100e-6), (0.9, 24.0, 0.5, 4.7e-3),
                                             (3.0, 20.0, 2.0, 10e-6)])
-def test_fast_decay_into_the_bus_against_solve_ivp(i0, v0, r_s, c):
+def test_fast_decay_into_the_bus_against_solve_ivp(i0, v0, r_s, c, sink):
     from scipy.integrate import solve_ivp
     r, l = R_COIL + R_SENSE, L_COIL
 
-    def f(t, x):   # L di/dt = -(R i + v + 2 V_d); C dv/dt = i + (V_s - v)/R_s
-        return [-(r * x[0] + x[1] + 2 * V_D) / l, (x[0] + (V_SUP - x[1]) / r_s) / c]
+    def f(t, x):   # L di/dt = -(R i + v + 2 V_d); C dv/dt = i + the feed (V_s - v)/R_s
+        feed = (V_SUP - x[1]) / r_s
+        return [-(r * x[0] + x[1] + 2 * V_D) / l, (x[0] + (feed if sink else max(feed, 0.0))) / c]
 
     def zero(t, x):
         return x[0]
@@ -102,7 +112,7 @@ def test_fast_decay_into_the_bus_against_solve_ivp(i0, v0, r_s, c):
                   atol=1e-12, dense_output=True)
     t_zero, t_drop = s.t_events[0][0], s.t_events[1][0]
     v_top = max(float(np.max(s.sol(np.linspace(0, t_zero, 20001))[1])), V_SUP)
-    d = bus_decay.decay(i0, v0, I_DROP, V_SUP, r_s, c, r, l, V_D)
+    d = (bus_decay.decay if sink else bus_decay.decay_no_sink)(i0, v0, I_DROP, V_SUP, r_s, c, r, l, V_D)
     # scipy solve_ivp (Radau, rtol 1e-10): the times, the highest bus and the charge to 1e-7
     assert float(d.charge) == pytest.approx(s.y_events[0][0][2], rel=1e-7)
     assert float(d.zero_time) == pytest.approx(t_zero, rel=1e-7)
@@ -149,8 +159,21 @@ def test_bridge_design_on_the_drooping_bus(tmp_path):
     assert doc["pull_in"]["peak_time_s"] >= stiff["pull_in"]["peak_time_s"]
 
 
-@pytest.mark.parametrize("sink, extra, key", [("false", "", "supply.sink"),
-                                              ("true", "", "hold.fast_fraction")])
+def test_bridge_design_on_the_drooping_bus_without_sink(tmp_path):
+    # a supply that cannot sink: the highest bus is the pump-up from the source's voltage
+    # (the highest starting bus), one capacitor_voltage check and the bus_pump_up check
+    r = run_cli("design", str(_drive(tmp_path, sink="false", r_s="0.5 ohm")), "--json")
+    assert r.returncode in (0, 1), r.stderr
+    doc = json.loads(r.stdout)
+    sup, bridge = doc["supply"], doc["topology"]["bridge"]
+    assert sup["highest_bus_v"] == pytest.approx(bridge["pumped_bus_v"], rel=1e-9)
+    assert sup["highest_bus_v"] > 30.0 and sup["lowest_bus_v"] < 20.0
+    names = [c["name"] for c in doc["checks"]]
+    assert names.count("capacitor_voltage") == 1 and "bus_pump_up" in names and "supply_droop" in names
+    assert doc["release"]["peak_switch_voltage_v"] >= sup["highest_bus_v"] + 0.7
+
+
+@pytest.mark.parametrize("sink, extra, key", [("true", "", "hold.fast_fraction")])
 def test_bridge_droop_refusals_one_line(tmp_path, sink, extra, key):
     p = _drive(tmp_path, extra, sink)
     if key == "hold.fast_fraction":

@@ -45,28 +45,50 @@ def _model(vs, rs, c, r, l, i_pull, t_end):
     return t_pull, float(v_low), float(bus_model.current(t_end, b))
 
 
-def spice_droop(tmp_path, name, vs, rs, c, r, l, i_pull, t_end) -> dict:
+def spice_droop(tmp_path, name, vs, rs, c, r, l, i_pull, t_end, r_e=None, coil=None) -> dict:
     """ngspice's ``tpull`` (s, the coil current's first crossing of ``i_pull``), ``vlow``
     (V, the lowest bus) and ``iend`` (A, the current at ``t_end``) of the drooping bus's
-    netlist (the module docstring), ``t_end / 20000`` s steps."""
+    netlist (the module docstring), ``t_end / 20000`` s steps. With ``r_e`` ohm a resistor
+    ``RE`` across the inductor and a 0 V source ``VLM`` in series with it (an ammeter for
+    the magnetising current: ``tpull`` is its crossing, ``imend`` its value at ``t_end``).
+    ``coil``: netlist lines in place of the inductor, between nodes ``a`` and ``m``."""
     step = t_end / 20000
+    coil = coil or f"L1 a m {l!r} IC=0"
+    meas = f".meas tran tpull WHEN i(VM)={i_pull!r} CROSS=1"
+    if r_e is not None:
+        coil = f"L1 a lm {l!r} IC=0\nVLM lm m DC 0\nRE a m {r_e!r}"
+        meas = (f".meas tran tpull WHEN i(VLM)={i_pull!r} CROSS=1\n"
+                f".meas tran imend FIND i(VLM) AT={t_end!r}")
     text = f"""* drooping bus: source, R_s, bulk C, coil R and L, switch
 VS src 0 DC {vs!r}
 RS src bus {rs!r}
 C1 bus 0 {c!r} IC={vs!r}
 RC bus a {r - R_SWITCH!r}
-L1 a m {l!r} IC=0
+{coil}
 VM m sw DC 0
 VG g 0 PULSE(0 1 0 1n 1n 1 2)
 BSW sw 0 I = V(sw) * (V(g) / {R_SWITCH!r} + (1 - V(g)) * 1e-9)
 {OPTIONS}
 .tran {step!r} {t_end!r} 0 {step!r} UIC
-.meas tran tpull WHEN i(VM)={i_pull!r} CROSS=1
+{meas}
 .meas tran vlow MIN v(bus)
 .meas tran iend FIND i(VM) AT={t_end!r}
 .end
 """
     return run(tmp_path, name, text)
+
+
+def simulated_peak(tmp_path, path, supply: float, coil_temp: float, rows: int):
+    """``coildrive simulate`` of the drive file ``path`` at ``supply`` V and ``coil_temp``
+    degC: its first ``rows`` CSV rows (an array) and the on-loop at that point."""
+    from coildrive.config import load_drive
+    from coildrive.model.circuit import loop
+
+    csv = tmp_path / "sim.csv"
+    r = run_cli("simulate", str(path), "--supply", str(supply), "--coil-temp", str(coil_temp), "--csv", str(csv))
+    assert r.returncode == 0, r.stderr
+    return (np.loadtxt(csv, delimiter=",", skiprows=1, max_rows=rows),
+            loop(load_drive(path), supply, coil_temp, 1.0, 1.0))
 
 
 @pytest.mark.parametrize("case", CASES, ids=[c[0] for c in CASES])

@@ -1,7 +1,8 @@
 """A full bridge on the drooping bus (``supply.source_resistance``): its turn-offs push the
 coil's current back into the bus behind the source resistance and the bulk capacitor, so
 the bus rises above the source while the release starts from a bus that may sit below it
-(:mod:`coildrive.model.bus_decay`, closed form)."""
+(:mod:`coildrive.model.bus_decay`, closed form; a supply that cannot sink blocks at the
+source's voltage and the rest charges the capacitor alone)."""
 
 from __future__ import annotations
 
@@ -49,13 +50,15 @@ def drooped(drive: Drive) -> bool:
 
 def decays(drive: Drive, res, i0, peak_time, peak_end) -> list[bus_decay.FastDecay]:
     """The fast decay of ``i0`` A at the points of ``res`` from each of
-    :data:`BRIDGE_STARTS` starting buses over :func:`bus_range`."""
+    :data:`BRIDGE_STARTS` starting buses over :func:`bus_range` (a supply that cannot
+    sink: :func:`coildrive.model.bus_decay.decay_no_sink`)."""
     s = drive.supply
     lp = release_loop(res)
     lo, hi = bus_range(drive, res, peak_time, peak_end)
     starts = [lo + (hi - lo) * k / (BRIDGE_STARTS - 1) for k in range(BRIDGE_STARTS)]
-    return [bus_decay.decay(i0, v0, drive.release.current, lp.v_on, s.source_resistance,
-                            s.capacitance, lp.r_off, lp.inductance, lp.diode(drive)) for v0 in starts]
+    fast = bus_decay.decay if s.sink else bus_decay.decay_no_sink
+    return [fast(i0, v0, drive.release.current, lp.v_on, s.source_resistance,
+                 s.capacitance, lp.r_off, lp.inductance, lp.diode(drive)) for v0 in starts]
 
 
 def release_time(drive: Drive, res, peak_time) -> np.ndarray:
@@ -127,7 +130,10 @@ def bridge_bus_checks(drive: Drive, sup: SupplyResult | None) -> list[Check]:
     """``capacitor_voltage``: a full bridge's highest bus on the drooping bus against the
     bulk capacitor's rating (a warning when the drive gives none). The switches' check
     takes the same bus through the release's switch voltage."""
-    if sup is None or sup.highest_bus_v is None:
+    if sup is None or sup.highest_bus_v is None or not drive.supply.sink:
+        # a supply that cannot sink: the bus_pump_up and capacitor_voltage checks of
+        # design/topology.py take the same highest bus (the pump-up from the source's
+        # voltage, the highest of the starting buses)
         return []
     rating = drive.supply.capacitor_voltage
     where = f"the bus rises to {sup.highest_bus_v:.4g} V ({sup.highest_bus_event}, {sup.highest_bus_corner})"

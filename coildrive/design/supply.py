@@ -13,6 +13,9 @@ import numpy as np
 
 from ..config import Drive
 from ..model import rl
+from ..model import flux_bus
+from ..model.eddy import EddyCoil
+from ..model.flux import FluxCoil
 from ..model.circuit import split_decay
 from ..model import supply as bus_model
 from . import boost
@@ -32,10 +35,24 @@ def through_clamp(drive: Drive) -> bool:
     return drive.freewheel.type == "clamp"
 
 
-def bus_at(drive: Drive, lp, inductance) -> bus_model.Bus:
-    """The drooping bus of the peak at the points of the loop ``lp`` (:func:`coildrive.model.supply.bus`)."""
+def bus_at(drive: Drive, lp, inductance):
+    """The drooping bus of the peak at the points of the loop ``lp`` (:func:`coildrive.model.supply.bus`);
+    with an eddy term (an :class:`~coildrive.model.eddy.EddyCoil`) its magnetising branch
+    and eddy resistance; a saturating coil's (a :class:`~coildrive.model.flux.FluxCoil`)
+    is :func:`coildrive.model.flux_bus.bus`."""
     s = drive.supply
-    return bus_model.bus(lp.v_on, s.source_resistance, s.capacitance, lp.r_on, inductance)
+    if isinstance(inductance, FluxCoil):
+        return flux_bus.bus(lp.v_on, s.source_resistance, s.capacitance, lp.r_on, inductance)
+    r_e = None
+    if isinstance(inductance, EddyCoil):
+        inductance, r_e = inductance.magnetising, inductance.resistance
+    return bus_model.bus(lp.v_on, s.source_resistance, s.capacitance, lp.r_on, inductance, r_e)
+
+
+def model_of(b):
+    """The module that answers for the bus ``b``: :mod:`coildrive.model.flux_bus` for a
+    saturating coil's, else :mod:`coildrive.model.supply`."""
+    return flux_bus if isinstance(b, flux_bus.FluxBus) else bus_model
 
 
 def rise_time(drive: Drive, lp, i_target, inductance) -> np.ndarray:
@@ -45,7 +62,8 @@ def rise_time(drive: Drive, lp, i_target, inductance) -> np.ndarray:
         return boost.rise_time(drive, lp, i_target, inductance)
     if not drive.supply.droops:
         return rl.rise_time(i_target, 0.0, lp.v_on, lp.r_on, inductance)
-    return bus_model.rise_time(i_target, bus_at(drive, lp, inductance))
+    b = bus_at(drive, lp, inductance)
+    return model_of(b).rise_time(i_target, b)
 
 
 def rise_current(drive: Drive, lp, t, inductance) -> np.ndarray:
@@ -54,7 +72,8 @@ def rise_current(drive: Drive, lp, t, inductance) -> np.ndarray:
         return boost.rise_current(drive, lp, t, inductance)
     if not drive.supply.droops:
         return rl.rise_current(t, 0.0, lp.v_on, lp.r_on, inductance)
-    return bus_model.current(t, bus_at(drive, lp, inductance))
+    b = bus_at(drive, lp, inductance)
+    return model_of(b).current(t, b)
 
 
 def steady_current(drive: Drive, lp) -> np.ndarray:
@@ -89,6 +108,8 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
         return None
     lp = res.loop
     peak = np.broadcast_to(peak_time, lp.v_on.shape)
+    top = getattr(res.hold, "terminal_max", None)
+    top = res.hold.i_max if top is None else top
     if res.armature is not None:
         pin = res.armature.pull_in
         v_low = np.asarray(pin.lowest_bus, float).reshape(lp.v_on.shape)
@@ -96,11 +117,15 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
         i_end = np.asarray(res.peak_end_current, float)
     else:
         b = bus_at(drive, lp, lp.inductance)
-        v_low, when = bus_model.lowest_bus(peak, b)
-        i_end = bus_model.current(peak, b)
+        model = model_of(b)
+        v_low, when = model.lowest_bus(peak, b)
     clamp = through_clamp(drive)
     if clamp:
-        i_top = np.maximum(i_end, res.hold.i_max)
+        if res.armature is None:
+            i_end, v_end = model.state(peak, b)
+            if model is bus_model:
+                i_end = bus_model.terminal(i_end, v_end, b)
+        i_top = np.maximum(i_end, top)
         floor = bus_model.bus_floor(lp.v_on, s.source_resistance, i_top)
         later = floor < v_low
         v_low, when = np.where(later, floor, v_low), np.where(later, peak, when)

@@ -34,6 +34,16 @@ Where the extremes are, exactly:
   oscillation are lower. Its highest is ``v`` at the earlier of that and the current's
   zero, or ``V_s`` if higher.
 
+**A supply that cannot sink** (``supply.sink = false``: a diode in its feed, taken as
+ideal, one-way, no drop): the source feeds the bus only while ``v < V_s``. From a bus at
+``v0 < V_s`` the circuit above holds (:func:`decay` up to the moment the bus reaches
+``V_s``: it rises monotonically to its first maximum, so that is a bisection on the
+monotone stretch); from there, or from ``v0 = V_s``, the feed blocks and the returned
+current charges ``C`` alone: the series RLC circuit of
+:func:`coildrive.model.bridge.pump_up` (``L di/dt = -(R i + v + 2 V_d)``, ``C dv/dt =
+i``), exact, the current falling monotonically to zero and the bus rising with it until
+then; the bus stays there (nothing takes it back). See :func:`decay_no_sink`.
+
 All functions broadcast over numpy arrays; units are A, V, ohm, H, F, s.
 """
 
@@ -43,7 +53,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import linear2
+from . import linear2, rlc
 
 #: Bisection steps for the drop-out and zero times: the bracket shrinks 2^-60.
 BISECTION_STEPS = 60
@@ -66,22 +76,29 @@ class FastDecay:
     charge: np.ndarray
 
 
-def decay(i0, v0, i_drop, v_s, r_s, c, r, l, v_d) -> FastDecay:
-    """The circuit of the module docstring from ``i0`` A and the bus at ``v0`` V (at or
-    below the source's ``v_s`` V); ``i_drop`` A the drop-out current."""
-    i0, v0, i_drop, v_s, r_s, c, r, l, v_d = np.broadcast_arrays(
-        *(np.asarray(x, float) for x in (i0, v0, i_drop, v_s, r_s, c, r, l, v_d)))
+def _fed(i0, v0, v_s, r_s, c, r, l, v_d):
+    """The circuit with the source (module docstring): ``(A, its eigenvalues, x(0) - x_ss,
+    i_ss, at)`` with ``at(t) -> (i A, v V)``."""
     a = (-r / l, -1.0 / l, 1.0 / c, -1.0 / (r_s * c))
     l1, l2 = linear2.eigenvalues(*a)
     i_ss = -(v_s + 2.0 * v_d) / (r + r_s)
     v_ss = v_s + r_s * i_ss
     y = (i0 - i_ss, v0 - v_ss)
-    z = linear2.times(a, y)                 # the rates at t = 0
-    zz = linear2.times(a, z)                # and their rates
 
     def at(t):
         di, dv = linear2.apply(t, a, l1, l2, y)
         return i_ss + di, v_ss + dv
+    return a, (l1, l2), y, i_ss, at
+
+
+def decay(i0, v0, i_drop, v_s, r_s, c, r, l, v_d) -> FastDecay:
+    """The circuit of the module docstring from ``i0`` A and the bus at ``v0`` V (at or
+    below the source's ``v_s`` V); ``i_drop`` A the drop-out current."""
+    i0, v0, i_drop, v_s, r_s, c, r, l, v_d = np.broadcast_arrays(
+        *(np.asarray(x, float) for x in (i0, v0, i_drop, v_s, r_s, c, r, l, v_d)))
+    a, (l1, l2), y, i_ss, at = _fed(i0, v0, v_s, r_s, c, r, l, v_d)
+    z = linear2.times(a, y)                 # the rates at t = 0
+    zz = linear2.times(a, z)                # and their rates
 
     v_lo = np.minimum(v0, v_s)
     with np.errstate(divide="ignore", invalid="ignore"):
@@ -115,3 +132,53 @@ def decay(i0, v0, i_drop, v_s, r_s, c, r, l, v_d) -> FastDecay:
     det = a[0] * a[3] - a[1] * a[2]
     charge = i_ss * t_zero + (a[3] * (i_z - i0) - a[1] * (v_z - v0)) / det
     return FastDecay(t_drop, t_zero, v_top, bus_max, np.where(v_top > v_s, t_top, np.inf), v_z, charge)
+
+
+def decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, l, v_d) -> FastDecay:
+    """:func:`decay` on a supply that cannot sink (module docstring): with the source
+    until the bus reaches ``v_s`` V, then the series RLC circuit into ``C`` alone.
+    ``bus_max`` is the bus when the current stops (or ``v_s``, which a bus that never got
+    there relaxes back to)."""
+    i0, v0, i_drop, v_s, r_s, c, r, l, v_d = np.broadcast_arrays(
+        *(np.asarray(x, float) for x in (i0, v0, i_drop, v_s, r_s, c, r, l, v_d)))
+    a, _, _, i_ss, at = _fed(i0, v0, v_s, r_s, c, r, l, v_d)
+    fed = decay(i0, v0, i_drop, v_s, r_s, c, r, l, v_d)
+    # phase A reaches V_s where its bus top, before the current stops, is above it
+    t_top = np.where(fed.bus_top > v_s, fed.bus_max_time, 0.0)
+    reach = (fed.bus_top > v_s) & (v0 < v_s)
+    lo_t, hi_t = np.zeros_like(t_top), np.where(reach, t_top, 0.0)
+    for _ in range(BISECTION_STEPS):
+        mid = 0.5 * (lo_t + hi_t)
+        below = at(mid)[1] < v_s
+        lo_t, hi_t = np.where(below, mid, lo_t), np.where(below, hi_t, mid)
+    blocked = reach | (v0 >= v_s)
+    t_a = np.where(v0 >= v_s, 0.0, np.where(reach, hi_t, fed.zero_time))
+    i_a = np.where(v0 >= v_s, i0, np.where(reach, at(t_a)[0], 0.0))
+    v_a = np.where(blocked, np.maximum(v0, v_s), fed.bus_at_zero)
+    det = a[0] * a[3] - a[1] * a[2]
+    q_a = i_ss * t_a + (a[3] * (i_a - i0) - a[1] * (v_a - v0)) / det
+    q_a = np.where(v0 >= v_s, 0.0, np.where(reach, q_a, fed.charge))
+    # phase B: x = q + C (v_a + 2 V_d), x(0) = a_b, x'(0) = i_a (model/rlc.py)
+    a_b = c * (v_a + 2.0 * v_d)
+    i_b = np.where(blocked, i_a, 1.0)
+    t_zb = np.where(blocked & (i_a > 0), rlc.first_zero(a_b, i_b, r, l, c), 0.0)
+    x_z, _ = rlc.state(t_zb, a_b, i_b, r, l, c)
+    v_end = np.where(blocked, v_a + (x_z - a_b) / c, fed.bus_at_zero)
+    q_b = np.where(blocked, x_z - a_b, 0.0)
+
+    def crossing_b(target):
+        lo, hi = np.zeros_like(t_zb), t_zb.copy()
+        for _ in range(BISECTION_STEPS):
+            mid = 0.5 * (lo + hi)
+            above = rlc.state(mid, a_b, i_b, r, l, c)[1] > target
+            lo, hi = np.where(above, mid, lo), np.where(above, hi, mid)
+        return hi
+
+    drop_in_a = (~blocked) | (i_a <= i_drop)
+    t_drop = np.where(drop_in_a, fed.drop_time, t_a + crossing_b(i_drop))
+    t_zero = np.where(blocked, t_a + t_zb, fed.zero_time)
+    bus_top = np.where(blocked, v_end, fed.bus_top)
+    bus_max = np.maximum(bus_top, v_s)
+    when = np.where(blocked, t_zero, fed.bus_max_time)
+    return FastDecay(t_drop, t_zero, bus_top, bus_max, np.where(bus_top > v_s, when, np.inf), v_end,
+                     q_a + q_b)

@@ -9,7 +9,10 @@ the three segment kinds are tabulated once from their exact segment times
 conducts (down to ``V_off / R_e``) and the flux's decay through ``R_e`` alone; a current
 after a time is read back from the table. The terminal current steps at every switch
 edge, so each edge has two samples at the same time (before and after). The release is
-drawn until the magnetising current has fallen to 1 % of where it started.
+drawn until the magnetising current has fallen to 1 % of where it started. On a drooping
+bus (``supply.source_resistance``) the peak is :mod:`coildrive.model.supply`'s closed form
+(its magnetising and terminal currents); the hold that follows sees the stiff supply, as
+:func:`coildrive.model.waveform.peak_samples` has it.
 """
 
 from __future__ import annotations
@@ -18,6 +21,7 @@ import numpy as np
 
 from ..config import Drive
 from . import eddy
+from . import supply as bus_model
 from .circuit import Loop
 from .flux_waveform import period_starts, stitch_periods
 
@@ -113,13 +117,23 @@ def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: 
     inside the last on-time; the pieces are then not in time order)."""
     e = lp.inductance[...]
     v, r_on = (float(np.ravel(x)[0]) for x in (lp.v_on, lp.r_on))
-    peak_end = float(np.ravel(eddy.rise_current(peak_time, 0.0, v, r_on, e))[0])
-    pt = _Point(lp, peak_end)
     big = 40 * points
     tp = np.linspace(0.0, peak_time, big + 1)
-    mp = pt.on.current(0.0, tp)
-    mp[-1] = peak_end
-    ts, ms, cs, ons = [tp], [mp], [pt.on_terminal(mp)], [np.ones_like(tp)]
+    if drive.supply.droops:   # the peak on the drooping bus, closed form (model/supply.py)
+        s = drive.supply
+        b = bus_model.bus(v, s.source_resistance, s.capacitance, r_on,
+                          float(np.ravel(e.magnetising)[0]), float(np.ravel(e.resistance)[0]))
+        mp, vp = bus_model.state(tp, b)
+        peak_end = float(mp[-1])
+        pt = _Point(lp, peak_end)
+        cp = bus_model.terminal(mp, vp, b)
+    else:
+        peak_end = float(np.ravel(eddy.rise_current(peak_time, 0.0, v, r_on, e))[0])
+        pt = _Point(lp, peak_end)
+        mp = pt.on.current(0.0, tp)
+        mp[-1] = peak_end
+        cp = pt.on_terminal(mp)
+    ts, ms, cs, ons = [tp], [mp], [cp], [np.ones_like(tp)]
     period = 1.0 / frequency
     n = max(1, int(round(hold_time * frequency)))
     t_on, t_off = duty * period, (1.0 - duty) * period

@@ -6,7 +6,10 @@ zero -- with the flux-linkage curve of :mod:`coildrive.model.flux`. At one opera
 point the two segment kinds are tabulated once (:class:`Track`): the exact time from
 zero current along the on-loop, and from the top along the off-loop, at 20,000
 currents; a current after a time is read back from the table. The hold's per-period
-start currents follow by the same scalar recurrence as the linear coil's.
+start currents follow by the same scalar recurrence as the linear coil's. On a drooping
+bus (``supply.source_resistance``) the peak is :mod:`coildrive.model.flux_bus`'s; the
+hold that follows sees the stiff supply, as :func:`coildrive.model.waveform.peak_samples`
+has it.
 """
 
 from __future__ import annotations
@@ -14,7 +17,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..config import Drive
-from . import flux
+from . import flux, flux_bus
 from .circuit import Loop
 
 #: Currents tabulated per segment kind.
@@ -90,12 +93,20 @@ def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: 
     coil = lp.inductance
     coil = coil.with_scale(float(np.ravel(coil.scale)[0]))
     v, r_on, r_off, v_off = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off))
-    peak_end = float(flux.current(coil, peak_time, 0.0, v, r_on))
-    tr = Track(coil, v, r_on, r_off, v_off, peak_end)
     big = 40 * points
     tp = np.linspace(0.0, peak_time, big + 1)
-    ts, cs, ons = [tp], [tr.rise(0.0, tp)], [np.ones_like(tp)]
-    cs[0][-1] = peak_end
+    if drive.supply.droops:   # the peak on the drooping bus (model/flux_bus.py)
+        s = drive.supply
+        fb = flux_bus.bus(v, s.source_resistance, s.capacitance, r_on, coil)
+        rise = flux_bus.current(tp, fb)
+        peak_end = float(rise[-1])
+        tr = Track(coil, v, r_on, r_off, v_off, peak_end)
+    else:
+        peak_end = float(flux.current(coil, peak_time, 0.0, v, r_on))
+        tr = Track(coil, v, r_on, r_off, v_off, peak_end)
+        rise = tr.rise(0.0, tp)
+        rise[-1] = peak_end
+    ts, cs, ons = [tp], [rise], [np.ones_like(tp)]
     period = 1.0 / frequency
     n = max(1, int(round(hold_time * frequency)))
     t_on, t_off = duty * period, (1.0 - duty) * period

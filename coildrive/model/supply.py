@@ -34,6 +34,24 @@ current rises monotonically up to the first zero of ``di/dt`` (from
 form on the current's monotone stretch; the lowest bus over a peak of length ``T`` is
 ``v(min(T, pi/omega))``.
 
+With an eddy-current term (a resistance ``R_e`` across the magnetising branch,
+:mod:`coildrive.model.eddy`) the state is the magnetising current ``i_m`` and the bus: the
+branch sees the loop's Thevenin pair, ``L di_m/dt = k (v - R i_m)`` with ``k = R_e/(R +
+R_e)``, and the bus feeds the terminal current ``i = k (i_m + v/R_e)``::
+
+    L di_m/dt = k (v - R i_m)
+    C dv/dt   = (V_s - v)/R_s - k (i_m + v/R_e)        i_m(0) = 0, v(0) = V_s
+
+still linear with constant input, ``A = [[-k R/L, k/L], [-k/C, -1/(R_s C) - k/(R_e C)]]``
+(``R_e -> inf``: ``k = 1``, the plain coil's matrix to the bit) and the same steady state
+(the branch is a short at DC). ``i_m`` is still an all-pole step response (the input
+enters the bus equation, ``i_m`` only through ``a12``), so it rises monotonically to
+``pi/omega``; the bus, though, steps into a falling slope at once (``C dv/dt(0) = -V_s/(R +
+R_e)``, the terminal current's switch-on step) and falls monotonically to the first zero
+of ``dv/dt`` (:func:`coildrive.model.linear2.first_zero`): its lowest over a peak of length
+``T`` is ``v`` at the earlier of ``T`` and that zero (a local minimum of a damped
+oscillation lies below ``v_ss``, and each later one is closer to it).
+
 Limits: ``R_s -> 0`` is today's stiff bus (``V_s/R`` with ``tau = L/R``); ``C -> 0`` is a
 first-order rise towards ``V_s/(R + R_s)`` with ``tau = L/(R + R_s)`` (the coil sees
 ``V_s R/(R + R_s)`` at the end).
@@ -56,8 +74,9 @@ BISECTION_STEPS = 60
 @dataclass(frozen=True)
 class Bus:
     """The linear circuit at each point (arrays broadcast together): source ``v_s`` V,
-    ``r_s`` ohm, ``c`` F, loop ``r`` ohm and ``l`` H; its eigenvalues ``l1``, ``l2``
-    (complex, ``Re l1 >= Re l2``) and steady state ``i_ss`` A, ``v_ss`` V."""
+    ``r_s`` ohm, ``c`` F, loop ``r`` ohm and ``l`` H (the magnetising branch's, with an
+    eddy term), ``g_e`` S the eddy conductance ``1/R_e`` (0: none); its eigenvalues
+    ``l1``, ``l2`` (complex, ``Re l1 >= Re l2``) and steady state ``i_ss`` A, ``v_ss`` V."""
 
     v_s: np.ndarray
     r_s: np.ndarray
@@ -68,6 +87,12 @@ class Bus:
     l2: np.ndarray
     i_ss: np.ndarray
     v_ss: np.ndarray
+    g_e: np.ndarray
+
+    @property
+    def matrix(self) -> tuple:
+        """``(a11, a12, a21, a22)`` of the module docstring's ``A``."""
+        return _matrix(self.r_s, self.c, self.r, self.l, self.g_e)
 
     @property
     def turn_time(self) -> np.ndarray:
@@ -79,22 +104,41 @@ class Bus:
             return np.where(w > 0, np.pi / np.where(w > 0, w, 1.0), np.inf)
 
 
-def bus(v_s, r_s, c, r, l) -> Bus:
-    """The circuit of the module docstring at each point (``r_s`` > 0, ``c`` > 0)."""
-    v_s, r_s, c, r, l = np.broadcast_arrays(*(np.asarray(x, float) for x in (v_s, r_s, c, r, l)))
-    l1, l2 = linear2.eigenvalues(*_matrix(r_s, c, r, l))
+def bus(v_s, r_s, c, r, l, r_e=None) -> Bus:
+    """The circuit of the module docstring at each point (``r_s`` > 0, ``c`` > 0), with an
+    eddy resistance ``r_e`` ohm across the magnetising branch ``l`` H (``None``: none)."""
+    g_e = 0.0 if r_e is None else 1.0 / np.asarray(r_e, float)
+    v_s, r_s, c, r, l, g_e = np.broadcast_arrays(*(np.asarray(x, float) for x in (v_s, r_s, c, r, l, g_e)))
+    l1, l2 = linear2.eigenvalues(*_matrix(r_s, c, r, l, g_e))
     i_ss = v_s / (r + r_s)
-    return Bus(v_s, r_s, c, r, l, l1, l2, i_ss, v_s - r_s * i_ss)
+    return Bus(v_s, r_s, c, r, l, l1, l2, i_ss, v_s - r_s * i_ss, g_e)
 
 
-def _matrix(r_s, c, r, l) -> tuple:
-    return -r / l, 1.0 / l, -1.0 / c, -1.0 / (r_s * c)
+def _matrix(r_s, c, r, l, g_e) -> tuple:
+    k = 1.0 / (1.0 + r * g_e)        # R_e/(R + R_e); exactly 1 without an eddy term
+    return -k * r / l, k / l, -k / c, -1.0 / (r_s * c) - k * g_e / c
 
 
 def state(t, b: Bus) -> tuple[np.ndarray, np.ndarray]:
-    """``(i A, v V)`` at ``t`` s after switch-on (Putzer's formula, module docstring)."""
-    di, dv = linear2.apply(t, _matrix(b.r_s, b.c, b.r, b.l), b.l1, b.l2, (-b.i_ss, b.v_s - b.v_ss))
+    """``(i A, v V)`` at ``t`` s after switch-on (Putzer's formula, module docstring);
+    with an eddy term ``i`` is the magnetising current (:func:`terminal` the coil's)."""
+    di, dv = linear2.apply(t, b.matrix, b.l1, b.l2, (-b.i_ss, b.v_s - b.v_ss))
     return b.i_ss + di, b.v_ss + dv
+
+
+def terminal(i, v, b: Bus) -> np.ndarray:
+    """The coil's terminal current (A) at magnetising current ``i`` A and bus ``v`` V: ``k
+    (i + v/R_e)`` (``i`` itself without an eddy term)."""
+    return (np.asarray(i, float) + b.g_e * np.asarray(v, float)) / (1.0 + b.r * b.g_e)
+
+
+def bus_turn_time(b: Bus) -> np.ndarray:
+    """s to the bus's first minimum (``inf``: it falls for ever): ``pi/omega`` without an
+    eddy term (``dv/dt(0) = 0``), else the first zero of ``dv/dt`` (module docstring)."""
+    a = b.matrix
+    z = linear2.times(a, (-b.i_ss, b.v_s - b.v_ss))      # the rates at t = 0
+    zz = linear2.times(a, z)
+    return np.where(b.g_e > 0, linear2.first_zero(z[1], zz[1], b.l1, b.l2), b.turn_time)
 
 
 def rise_time(i_target, b: Bus) -> np.ndarray:
@@ -135,8 +179,9 @@ def current(t, b: Bus) -> np.ndarray:
 
 def lowest_bus(t_end, b: Bus) -> tuple[np.ndarray, np.ndarray]:
     """``(lowest bus V, when s)`` over a peak of ``t_end`` s: the bus falls monotonically
-    to its first minimum at ``pi/omega`` (module docstring)."""
-    when = np.minimum(np.asarray(t_end, float), b.turn_time)
+    to its first minimum at ``pi/omega`` (with an eddy term at :func:`bus_turn_time`;
+    module docstring)."""
+    when = np.minimum(np.asarray(t_end, float), bus_turn_time(b))
     return state(when, b)[1], when
 
 

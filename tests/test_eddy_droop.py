@@ -1,0 +1,142 @@
+"""An eddy-current term on the drooping bus (``[coil] eddy_resistance`` with ``[supply]
+source_resistance`` + ``capacitance``) against the outside world.
+
+The circuit (coildrive/model/supply.py, module docstring): source ``V_s``, its resistance
+``R_s``, the bulk capacitor ``C``, the coil loop ``R`` and the magnetising inductance ``L``
+with the eddy resistance ``R_e`` across it, switched on at ``t = 0``. References:
+
+* ngspice (batch mode, ``ngspice -b``): the netlist of tests/test_supply_droop.py
+  (:func:`test_supply_droop.spice_droop`) with a
+  resistor ``RE`` across the inductor and a 0 V source ``VLM`` in series with it (an
+  ammeter: ``i(VLM)`` is the magnetising current, ``i(VM)`` the terminal current);
+  ``.meas tran`` ``WHEN ... CROSS=1`` (the rise time of the magnetising current), ``MIN``
+  (the lowest bus) and ``FIND ... AT`` (the currents at the end of the peak);
+* scipy's ``solve_ivp`` (Radau) of the circuit written afresh from Kirchhoff's laws, with
+  the terminal current solved from the loop at every step (no Thevenin reduction);
+* the limit ``R_e -> inf`` (hand-worked: the branch carries no eddy current), today's
+  drooping bus.
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+
+from conftest import EXAMPLES, run_cli
+from test_supply_droop import simulated_peak, spice_droop
+
+from coildrive.model import supply as bus_model
+
+#: (name, V_s V, R_s ohm, C F, R ohm, L H, R_e ohm, pull-in A, peak s): an overdamped relay
+#: on a long cable, and an underdamped low-resistance coil on a battery (complex eigenvalues).
+CASES = [
+    ("overdamped", 12.0, 2.0, 100e-6, 44.0, 0.2, 300.0, 0.16, 20e-3),
+    ("underdamped", 12.0, 1.0, 1e-3, 1.0, 1e-3, 5.0, 3.0, 10e-3),
+]
+
+
+def _model(vs, rs, c, r, l, r_e, i_pull, t_end):
+    b = bus_model.bus(vs, rs, c, r, l, r_e)
+    t_pull = float(bus_model.rise_time(i_pull, b))
+    v_low, _ = bus_model.lowest_bus(t_end, b)
+    i_m, v = bus_model.state(t_end, b)
+    return t_pull, float(v_low), float(i_m), float(bus_model.terminal(i_m, v, b))
+
+
+@pytest.mark.parametrize("case", CASES, ids=[c[0] for c in CASES])
+def test_eddy_droop_against_ngspice(tmp_path, case):
+    name, vs, rs, c, r, l, r_e, i_pull, t_end = case
+    step = t_end / 20000
+    got = spice_droop(tmp_path, name, vs, rs, c, r, l, i_pull, t_end, r_e)
+    t_pull, v_low, i_m, i_t = _model(vs, rs, c, r, l, r_e, i_pull, t_end)
+    print(f"{name}: pull-in {t_pull / got['tpull'] - 1:+.2e}, lowest bus {v_low - got['vlow']:+.2e} V, "
+          f"terminal {i_t / got['iend'] - 1:+.2e} (relative to ngspice)")
+    # ngspice transient: 0.1 % + one time step on the time; 1 mV on the bus; 0.1 % on currents
+    assert abs(t_pull - got["tpull"]) <= 1e-3 * t_pull + step, (t_pull, got)
+    assert abs(v_low - got["vlow"]) <= 1e-3, (v_low, got)
+    assert abs(i_m - got["imend"]) <= 1e-3 * abs(i_m), (i_m, got)
+    assert abs(i_t - got["iend"]) <= 1e-3 * abs(i_t), (i_t, got)
+
+
+@pytest.mark.parametrize("case", CASES, ids=[c[0] for c in CASES])
+def test_eddy_droop_against_solve_ivp(case):
+    from scipy.integrate import solve_ivp
+
+    name, vs, rs, c, r, l, r_e, i_pull, t_end = case
+
+    def terminal(x):      # the loop v = R i + R_e (i - i_m), solved for the terminal current
+        i_m, v = x
+        return (v + r_e * i_m) / (r + r_e)
+
+    def f(t, x):          # x = (magnetising current, bus voltage)
+        i = terminal(x)
+        return [r_e * (i - x[0]) / l, ((vs - x[1]) / rs - i) / c]
+
+    def reach(t, x):
+        return x[0] - i_pull
+    sol = solve_ivp(f, (0.0, t_end), [0.0, vs], method="Radau", rtol=1e-10, atol=1e-12,
+                    dense_output=True, events=reach)
+    t_pull, v_low, i_m, i_t = _model(vs, rs, c, r, l, r_e, i_pull, t_end)
+    tt = np.linspace(0.0, t_end, 200001)
+    ref = sol.sol(tt)
+    # scipy solve_ivp (Radau, rtol 1e-10): the event's first time, the dense bus minimum
+    assert t_pull == pytest.approx(sol.t_events[0][0], rel=1e-7)
+    assert v_low == pytest.approx(float(np.min(ref[1])), abs=1e-6)
+    assert i_m == pytest.approx(float(sol.y[0, -1]), rel=1e-7)
+    assert i_t == pytest.approx(float(terminal(sol.y[:, -1])), rel=1e-7)
+    # the closed form along the whole peak, terminal current included
+    b = bus_model.bus(vs, rs, c, r, l, r_e)
+    m, v = bus_model.state(tt[::1000], b)
+    assert np.max(np.abs(m - ref[0][::1000])) <= 1e-7 * np.max(np.abs(ref[0]))
+    assert np.max(np.abs(v - ref[1][::1000])) <= 1e-7 * vs
+    assert np.max(np.abs(bus_model.terminal(m, v, b) - terminal(ref[:, ::1000]))) <= 1e-7 * np.max(ref[0])
+
+
+def test_without_eddy_current_limit():
+    # R_e -> inf: no eddy current, today's drooping bus (hand-worked); R_e = None is it to the bit
+    name, vs, rs, c, r, l, r_e, i_pull, t_end = CASES[0]
+    plain = bus_model.bus(vs, rs, c, r, l)
+    far = bus_model.bus(vs, rs, c, r, l, 1e12)
+    assert float(bus_model.rise_time(i_pull, far)) == pytest.approx(float(bus_model.rise_time(i_pull, plain)), rel=1e-8)
+    assert float(bus_model.lowest_bus(t_end, far)[0]) == pytest.approx(float(bus_model.lowest_bus(t_end, plain)[0]),
+                                                                       abs=1e-8)
+    assert np.array_equal(plain.matrix, bus_model.bus(vs, rs, c, r, l, None).matrix)
+
+
+def _drive(tmp_path, rs: str | None, eddy: str = "300 ohm") -> str:
+    text = (EXAMPLES / "relay-12v.toml").read_text()
+    if rs is not None:
+        text = text.replace('max = "14.4 V"',
+                            f'max = "14.4 V"\nsource_resistance = "{rs}"\ncapacitance = "470 uF"', 1)
+    text = text.replace('board = "tiny-8bit-diode"', f'board = "{EXAMPLES.parent / "boards" / "tiny-8bit-diode.toml"}"')
+    text = text.replace("[coil]", f'[coil]\neddy_resistance = "{eddy}"', 1)
+    path = tmp_path / f"eddy-droop-{rs and rs.split()[0]}.toml"
+    path.write_text(text)
+    return str(path)
+
+
+def test_design_and_simulate_end_to_end(tmp_path):
+    stiff = json.loads(run_cli("design", _drive(tmp_path, None), "--json").stdout)
+    r = run_cli("design", _drive(tmp_path, "0.5 ohm"), "--json")
+    assert r.returncode in (0, 1), r.stderr
+    d = json.loads(r.stdout)
+    s = d["supply"]
+    # the pull-in corner includes the droop: slower than on the stiff bus
+    assert d["pull_in"]["time_s"] > stiff["pull_in"]["time_s"]
+    assert s["lowest_bus_corner"].startswith("9.6 V") and s["lowest_bus_v"] < 9.6
+    assert s["capacitor_energy_j"] > 0 and s["ripple_current_a"] > 0
+    assert "supply_droop" in {c["name"] for c in d["checks"]} and "eddy" in d
+    # simulate: the terminal current steps to V/(R + R_e) at switch-on (the bus has not
+    # moved yet), the magnetising current starts at zero and follows the closed form
+    from coildrive.config import load_drive
+
+    path = _drive(tmp_path, "0.5 ohm")
+    rows, lp = simulated_peak(tmp_path, path, 9.6, 80.0, 3)
+    drive = load_drive(path)
+    b = bus_model.bus(9.6, 0.5, 470e-6, float(lp.r_on), drive.coil.inductance, 300.0)
+    assert rows[0, 5] == 0.0 and rows[0, 1] == pytest.approx(9.6 / (float(lp.r_on) + 300.0), rel=1e-8)
+    m, v = bus_model.state(rows[:, 0], b)
+    assert rows[:, 5] == pytest.approx(m, rel=1e-8, abs=1e-12)
+    assert rows[:, 1] == pytest.approx(bus_model.terminal(m, v, b), rel=1e-8)
