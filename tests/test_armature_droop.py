@@ -269,9 +269,11 @@ def test_design_simulate_and_emulate(tmp_path):
 @pytest.mark.parametrize("old, new, key", [
     ("[hold]\n", '[switch]\ntopology = "full_bridge"\n\n[freewheel]\ntype = "diode"\ndiode_drop = "0.8 V"\n\n[hold]\n', "armature"),
     ("[hold]\n", '[hold]\nregulation = "closed_loop"\n', "hold.regulation"),
+    ("inductance_tolerance = 0.10\n", 'inductance_tolerance = 0.10\neddy_resistance = "300 ohm"\n',
+     "coil.eddy_resistance"),
 ])
 def test_what_stays_refused(tmp_path, old, new, key):
-    """One line naming the key, exit 2: a bridge, a regulated hold."""
+    """One line naming the key, exit 2: a bridge, a regulated hold, an eddy term."""
     path = Path(_drive_file(tmp_path))
     path.write_text(path.read_text().replace(old, new, 1))
     out = run_cli("design", str(path))

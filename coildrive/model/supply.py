@@ -217,7 +217,7 @@ def state_from(t, b: Bus, i0, v0) -> tuple[np.ndarray, np.ndarray]:
     bus is at ``v0`` V, the switch on throughout (the same circuit from any start:
     ``x(t) = x_ss + e^{At} (x0 - x_ss)``). A moving armature's coil, once it rests at a
     stop, is this circuit again from the state it arrived with."""
-    a = _matrix(b.r_s, b.c, b.r, b.l)
+    a = b.matrix
     di, dv = linear2.apply(t, a, b.l1, b.l2, (np.asarray(i0, float) - b.i_ss,
                                                np.asarray(v0, float) - b.v_ss))
     return b.i_ss + di, b.v_ss + dv
@@ -227,7 +227,7 @@ def _slope_zeros(b: Bus, i0, v0, row: int) -> tuple[np.ndarray, np.ndarray]:
     """The first two zeros (s, ``inf`` where none) of ``d/dt`` of the state's ``row``
     (0: current, 1: bus) from ``(i0, v0)``: the first from :func:`linear2.first_zero` on
     ``e^{At} A d``; a complex pair's next ``pi/omega`` later (a real pair has one at most)."""
-    a = _matrix(b.r_s, b.c, b.r, b.l)
+    a = b.matrix
     d = (np.asarray(i0, float) - b.i_ss, np.asarray(v0, float) - b.v_ss)
     ad = linear2.times(a, d)
     aad = linear2.times(a, ad)
@@ -289,7 +289,7 @@ def integrals_from(t, b: Bus, i0, v0, nodes: int = 64) -> tuple[np.ndarray, np.n
     closed form (numpy's ``leggauss``; the integrand is smooth, a few exponentials)."""
     shape = np.broadcast_shapes(np.shape(t), b.i_ss.shape, np.shape(i0), np.shape(v0))
     t, i0, v0 = (np.broadcast_to(np.asarray(a, float), shape) for a in (t, i0, v0))
-    a11, a12, a21, a22 = _matrix(b.r_s, b.c, b.r, b.l)
+    a11, a12, a21, a22 = b.matrix
     i1, v1 = state_from(t, b, i0, v0)
     det = a11 * a22 - a12 * a21
     charge = b.i_ss * t + (a22 * (i1 - i0) - a12 * (v1 - v0)) / det
