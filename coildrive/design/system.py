@@ -30,7 +30,7 @@ import math
 import numpy as np
 
 from ..errors import InputError
-from ..model import circuit, pwm, shared_bus
+from ..model import armature_bound, circuit, magnet, pwm, shared_bus
 from ..system_file import System, with_timer
 from . import envelope
 from .envelope import table_index
@@ -81,11 +81,21 @@ PIECE_S = 10e-6
 TAIL_SPLITS = 6
 
 
+def _branch_rise(t, b: dict):
+    """The bound (A) of one branch's peak ``t`` s after switch-on: the stiff-bus rise
+    ``V/R (1 - exp(-t R/L))``, or with a moving armature
+    :func:`~coildrive.model.armature_bound.peak_rise`."""
+    if "closing_s" in b:
+        return armature_bound.peak_rise(t, b["supply_v"], b["resistance_ohm"], b["inductance_h"],
+                                        b["closed_inductance_h"], b["flux_ratio"], b["closing_s"])
+    return b["supply_v"] / b["resistance_ohm"] * -np.expm1(
+        -np.clip(t, 0.0, None) * b["resistance_ohm"] / b["inductance_h"])
+
+
 def _branch_parts(t, b: dict):
     """``(rise, tail)`` (A) of one branch ``t`` s after switch-on, each as if it held there."""
     t = np.asarray(t, float)
-    rise = b["supply_v"] / b["resistance_ohm"] * -np.expm1(
-        -np.clip(t, 0.0, None) * b["resistance_ohm"] / b["inductance_h"])
+    rise = _branch_rise(t, b)
     age = np.clip(t - b["peak_s"] - b["pwm_period_s"], 0.0, None)
     tail = b["hold_top_a"] + np.max([e * np.exp(-age * b["slow_resistance_ohm"] / l)
                                      for e, l in zip(b["excess_a"], b["tail_inductance_h"])], axis=0)
@@ -105,7 +115,7 @@ def _piece_draw(u, w, b: dict):
     within the peak, else the tail at ``u`` (its value just after the peak's end where
     ``u`` is that end: the tail starts above the rise)."""
     mid = 0.5 * (u + w)
-    rise = _branch_parts(w, b)[0]
+    rise = _branch_rise(np.minimum(w, b["peak_s"]), b)      # the rise is within the peak
     tail = _branch_parts(u, b)[1]
     return np.where(mid < 0, 0.0, np.where(mid < b["peak_s"], rise, tail))
 
@@ -160,7 +170,9 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
     tolerance corner, cold coil) at the highest duty readable there -- the duty entry read
     low, at the top of the range and just below each duty-table step inside it. The excess
     over the orbit's bottom is taken against the lowest bottom in the range (its lowest
-    supply and readable duty, the hottest coil of the design's corners)."""
+    supply and readable duty, the hottest coil of the design's corners). With a moving
+    armature the peak's rise is :func:`_armature_rise`'s (the open coil's while the armature
+    is proved to only close) and the tail is the seated coil's, one part."""
     drive = d.drive
     b = drive.board
     rate_tick = b.tick.rate
@@ -219,12 +231,35 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
         # decay at its highest
         ends = np.linspace(l_min, l_max, TAIL_SPLITS + 1) if l_max > l_min else np.array([l_min, l_min])
         i_pe = hi / r_on * -np.expm1(-tp * r_on / ends[:-1])
-        branches.append({"supply_v": hi, "supply_low_v": lo, "resistance_ohm": r_on, "inductance_h": l_min,
-                         "peak_s": tp, "peak_end_a": float(i_pe[0]), "hold_top_a": hold_top,
+        branch = {"supply_v": hi, "supply_low_v": lo, "resistance_ohm": r_on, "inductance_h": l_min,
+                  "peak_s": tp}
+        if drive.armature is not None:
+            branch.update(_armature_rise(drive.armature, hi, r_on, l_min, l_max, tp))
+            # the peak's end current is bounded at the open gap, its decay at the seated
+            # coil's highest inductance: one part
+            i_pe, ends = np.array([float(_branch_rise(tp, branch))]), np.array([l_min, l_max])
+        branches.append({**branch, "peak_end_a": float(i_pe[0]), "hold_top_a": hold_top,
                          "excess_a": [max(0.0, float(x) - bottom) for x in i_pe],
                          "tail_inductance_h": [float(x) for x in ends[1:]],
                          "slow_resistance_ohm": r_slow, "pwm_period_s": settle_s})
     return {"reading_droop_v": reading_droop_v, **_summary(branches)}
+
+
+def _armature_rise(arm, supply: float, r_on: float, lc_low: float, lc_high: float, peak_s: float) -> dict:
+    """The keys a moving armature's branch adds (:func:`coildrive.model.armature_bound.peak_rise`):
+    ``inductance_h`` the lowest open inductance (the rise while the armature only closes),
+    ``closed_inductance_h`` the lowest seated one and ``flux_ratio`` ``L_c/L_open`` (the
+    any-motion bound), ``closing_s`` the time up to which the armature is proved to only
+    close (the earliest start plus :func:`~coildrive.model.armature_bound.closing_window`;
+    the peak's length when that covers it). ``lc_low``/``lc_high``: the loop's seated
+    inductance range (H) over the tolerances."""
+    ratio = arm.inductance_closed / arm.inductance_open
+    _, beta = magnet.fit_gap(arm.inductance_open, arm.inductance_closed, arm.stroke)
+    start = armature_bound.earliest_start(supply, r_on, lc_low / ratio, lc_high, ratio, beta,
+                                          arm.spring_preload + arm.load_force)
+    closing = start + armature_bound.closing_window(arm.mass, arm.damping, arm.spring_rate, arm.restitution)
+    return {"inductance_h": lc_low / ratio, "closed_inductance_h": lc_low, "flux_ratio": ratio,
+            "closing_s": min(closing, peak_s)}
 
 
 def _current_mode_hold(d):
@@ -587,15 +622,13 @@ def rail_curves(result: SystemResult, points: int = 6000) -> list[dict]:
 
 
 def _refuse(system: System, ch) -> None:
-    """What the rail's current bound is made for: a linear coil without a moving armature,
-    a voltage-mode (fixed, supply-table or closed-loop) or current-mode hold and one
+    """What the rail's current bound is made for: a linear coil (with or without a moving
+    armature), a voltage-mode (fixed, supply-table or closed-loop) or current-mode hold and one
     switch. Anything else is refused in one line."""
     d = ch.drive
     why = None
     if d.coil.flux_current:
         key, why = "coil.flux_current", "a flux-linkage curve"
-    elif d.armature is not None:
-        key, why = "armature", "a moving armature"
     elif d.hold.mode == "latch":
         key, why = "hold.mode", "a latching coil"
     elif d.switch.topology == "full_bridge":
@@ -606,7 +639,7 @@ def _refuse(system: System, ch) -> None:
         key, why = "supply.boost", "a boosted peak"
     if why is not None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
-                         "in a system yet; expected a linear coil, no [armature], one switch and a "
+                         "in a system yet; expected a linear coil (an [armature] may move it), one switch and a "
                          "voltage-mode fixed, supply-table or closed-loop hold, or a current-mode hold")
 
 
@@ -645,7 +678,9 @@ def _droop(system: System, channels, designs, rails, offsets) -> dict:
             r_on.append(float(np.min(lp.r_on)))
             r_off.append(float(np.min(lp.r_off)))
             v_off.append(float(np.min(lp.v_off)))
-            l.append(float(np.min(lp.inductance)))
+            # a moving armature's current is bounded by the open coil's (model/armature_bound.py)
+            l.append(float(np.min(lp.inductance if drv.armature is None
+                                  else circuit.open_inductance(drv, tol.l_factor))))
             tp.append(d.pull_in.peak_ticks / drv.board.tick.rate)
             low = envelope.supply_codes(drv, v)[0] if drv.board.supply_sense is not None else 0
             duty.append(float(_tables(d)[2](np.asarray(low))))
