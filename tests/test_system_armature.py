@@ -23,6 +23,7 @@ import pytest
 from typer.testing import CliRunner
 
 from conftest import BOARDS, EXAMPLES
+from rail_reference import linear_tail, rail_worst
 
 from coildrive.cli import app
 from coildrive.config import load_drive
@@ -242,23 +243,11 @@ def test_staggered_total_never_above_the_limit(system):
     in the peak, the hold's top plus the excess's decay after it) at every supply where
     the readable branches change: never above the limit with the stagger found."""
     limit = system["current_limit_a"]
-    chans = system["channels"]
 
     def branch(t, b):
-        age = np.maximum(t - b["peak_s"] - b["pwm_period_s"], 0)
-        tail = b["hold_top_a"] + np.max([e * np.exp(-age * b["slow_resistance_ohm"] / l)
-                                         for e, l in zip(b["excess_a"], b["tail_inductance_h"])], axis=0)
-        return np.where(t < 0, 0, np.where(t <= b["peak_s"], _rise(t, b), tail))
+        return np.where(t < 0, 0, np.where(t <= b["peak_s"], _rise(t, b), linear_tail(t, b)))
 
-    end = max(c["offset_s"] + c["bound"]["peak_s"] for c in chans) + 0.02
-    t = np.linspace(0, end, 100_000)
-    edges = sorted({x for c in chans for b in c["bound"]["branches"] for x in (b["supply_low_v"], b["supply_v"])})
-    rows = [np.array([branch(t - c["offset_s"], b) for b in c["bound"]["branches"]]) for c in chans]
-    worst = 0.0
-    for v in edges + [0.5 * (a + b) for a, b in zip(edges[:-1], edges[1:])]:
-        total = sum(r[[b["supply_low_v"] <= v <= b["supply_v"] for b in c["bound"]["branches"]]].max(axis=0)
-                    for r, c in zip(rows, chans))
-        worst = max(worst, float(np.max(total)))
+    worst = rail_worst(system["channels"], branch)
     assert worst <= limit, worst
     assert system["rails"][0]["peak_current_staggered_a"] >= worst - 1e-12
     assert system["stagger_ticks"] > 0
