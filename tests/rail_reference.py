@@ -29,3 +29,18 @@ def rail_worst(chans, branch, points: int = 100_000) -> float:
                     for r, c in zip(rows, chans))
         worst = max(worst, float(np.max(total)))
     return worst
+
+
+def manifold_copy(folder, old: str = "", new: str = "", extra: str = ""):
+    """The manifold example copied into ``folder`` with its purge valve's drive file changed
+    (``old`` replaced by ``new``, ``extra`` appended); returns the system file's path."""
+    import shutil
+
+    from conftest import EXAMPLES
+
+    for f in (EXAMPLES / "manifold").glob("*.toml"):
+        shutil.copy(f, folder / f.name)
+    purge = folder / "purge-valve-24v.toml"
+    text = purge.read_text()
+    purge.write_text((text.replace(old, new) if old else text) + extra)
+    return folder / "manifold-system.toml"

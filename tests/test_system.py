@@ -327,15 +327,16 @@ def test_windows_that_do_not_overlap_name_the_channel(tmp_path):
     assert "\n" not in line and "'purge1'" in line and "do not overlap" in line, line
 
 
-@pytest.mark.parametrize("extra, key", [('eddy_resistance = "150 ohm"', "coil.eddy_resistance")])
+@pytest.mark.parametrize("extra, key", [
+    ('[switch]\ntopology = "full_bridge"\n\n[freewheel]\ntype = "diode"\ndiode_drop = "0.9 V"\n',
+     "switch.topology")])
 def test_a_channel_the_bound_does_not_model_is_refused(tmp_path, extra, key):
-    # the rail's bound is the plain RL rise of a linear coil: an eddy term's step is not in it
+    # the rail's bound has no full bridge (its supply draw and returned energy) yet
     path = _system(tmp_path, BASE)
     purge = tmp_path / "purge-valve-24v.toml"
-    text = purge.read_text().replace("[coil]\n", f"[coil]\n{extra}\n", 1)
+    text = purge.read_text()
     assert "split_decay = true" in text
-    text = text.split("[freewheel]")[0]            # no split decay (an eddy term refuses it)
-    purge.write_text(text)
+    purge.write_text(text.split("[freewheel]")[0] + extra)
     p = run_cli("design", str(path))
     line = p.stderr.strip()
     assert p.returncode == 2 and "\n" not in line and key in line and "'purge1'" in line, line

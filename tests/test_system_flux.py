@@ -14,15 +14,12 @@ Outside references, named beside each check:
 from __future__ import annotations
 
 import json
-import re
-import shutil
-
 import numpy as np
 import pytest
 from typer.testing import CliRunner
 
-from conftest import BOARDS, EXAMPLES
-from rail_reference import linear_tail, rail_worst
+from conftest import BOARDS
+from rail_reference import linear_tail, manifold_copy, rail_worst
 
 from coildrive.cli import app
 from coildrive.config import load_drive
@@ -35,11 +32,7 @@ BOARD = BOARDS / "manifold-m32-6ch.toml"
 
 
 def _folder(folder, extra="", coil_extra=""):
-    for f in (EXAMPLES / "manifold").glob("*.toml"):
-        shutil.copy(f, folder / f.name)
-    purge = (folder / "purge-valve-24v.toml").read_text()
-    (folder / "purge-valve-24v.toml").write_text(re.sub(r'inductance = "70 mH"\n', CURVE + coil_extra, purge) + extra)
-    return folder / "manifold-system.toml"
+    return manifold_copy(folder, 'inductance = "70 mH"\n', CURVE + coil_extra, extra)
 
 
 @pytest.fixture(scope="module")

@@ -30,7 +30,7 @@ import math
 import numpy as np
 
 from ..errors import InputError
-from ..model import armature_bound, circuit, flux, flux_bound, magnet, pwm, shared_bus
+from ..model import armature_bound, circuit, eddy, flux, flux_bound, magnet, pwm, shared_bus
 from ..system_file import System, with_timer
 from . import envelope
 from .envelope import table_index
@@ -87,6 +87,11 @@ def _branch_rise(t, b: dict):
     :func:`~coildrive.model.armature_bound.peak_rise`."""
     if "rise_time_s" in b:
         return flux_bound.table_current(t, b["rise_time_s"], b["rise_current_a"])
+    if "eddy_resistance_ohm" in b:
+        # i = (V + R_e i_m)/(R + R_e), i_m = V/R (1 - exp(-t R_th/L)), R_th = R R_e/(R + R_e)
+        v, r, r_e = b["supply_v"], b["resistance_ohm"], b["eddy_resistance_ohm"]
+        i_m = v / r * -np.expm1(-np.clip(t, 0.0, None) * r * r_e / ((r + r_e) * b["inductance_h"]))
+        return np.where(np.asarray(t) < 0, 0.0, (v + r_e * i_m) / (r + r_e))
     if "closing_s" in b:
         return armature_bound.peak_rise(t, b["supply_v"], b["resistance_ohm"], b["inductance_h"],
                                         b["closed_inductance_h"], b["flux_ratio"], b["closing_s"])
@@ -220,8 +225,10 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             cands = [hi] + [top_of(c) for c in duty_codes[1:] if lo < top_of(c) < hi] if duty_codes else [hi]
             cold = loops(np.array(cands)[:, None], t_cold)
             duty_hi = np.asarray(duty_of(low_code(np.array(cands))), float)[:, None]
-            hold_top = float(np.max(pwm.pwm_steady_state(duty_hi, f, cold.v_on, cold.r_on, cold.r_off,
-                                                         cold.v_off, cold.inductance).i_max))
+            orbit = pwm.pwm_steady_state(duty_hi, f, cold.v_on, cold.r_on, cold.r_off, cold.v_off, cold.inductance)
+            # the draw is the terminal current (with an eddy term: the magnetising current's
+            # step up at each switch-on; the state, i_min below, is the magnetising current)
+            hold_top = float(np.max(orbit.i_max if orbit.terminal_max is None else orbit.terminal_max))
             hot = loops(lo, t_hot)
             duty_lo = float(duty_of(high_code(np.array([hi])))[0])
             bottom = float(np.min(pwm.pwm_steady_state(duty_lo, f, hot.v_on, hot.r_on, hot.r_off, hot.v_off,
@@ -230,6 +237,9 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
         top_cold = loops(hi, t_cold)
         r_on = float(np.min(top_cold.r_on))
         coil = top_cold.inductance
+        r_eddy = None
+        if isinstance(coil, eddy.EddyCoil):       # (linear: a curve under it is refused)
+            r_eddy, coil = float(np.min(coil.resistance)), coil.magnetising
         curve = coil.curve if isinstance(coil, flux.FluxCoil) else None
         if curve is not None:     # a saturating coil: its small-signal range (reports only)
             scale = np.asarray(coil.scale, float)
@@ -249,6 +259,15 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             # the peak's end current is bounded at the open gap, its decay at the seated
             # coil's highest inductance: one part
             i_pe, ends = np.array([float(_branch_rise(tp, branch))]), np.array([l_min, l_max])
+        elif r_eddy is not None:
+            # the terminal current's step and rise (model/eddy.py's Thevenin pair); the tail
+            # on the magnetising current, decaying at the slowest Thevenin rate: one part
+            branch["eddy_resistance_ohm"] = r_eddy
+            r_th = r_eddy * np.minimum(top_cold.r_on, top_cold.r_off) / (np.minimum(top_cold.r_on, top_cold.r_off) + r_eddy)
+            r_slow = float(np.min(r_th))
+            i_pe = np.array([hi / r_on * -np.expm1(-tp * r_on * r_eddy / ((r_on + r_eddy) * l_min))])
+            ends = np.array([l_min, l_max])
+            peak_end["a"] = float(_branch_rise(tp, branch))
         elif curve is not None:
             # the exact rise at the lowest scale, tabulated; the tail's excess and decay on
             # the flux (model/flux_bound.py): one part
@@ -676,8 +695,8 @@ def rail_curves(result: SystemResult, points: int = 6000) -> list[dict]:
 
 
 def _refuse(system: System, ch) -> None:
-    """What the rail's current bound is made for: a linear coil (with or without a moving
-    armature) or a flux-linkage curve (without; voltage-mode), a voltage-mode (fixed, supply-table or closed-loop) or current-mode hold and one
+    """What the rail's current bound is made for: a linear coil (with a moving armature or
+    an eddy term, not both) or a flux-linkage curve (neither; voltage-mode), a voltage-mode (fixed, supply-table or closed-loop) or current-mode hold and one
     switch. Anything else is refused in one line."""
     d = ch.drive
     why = None
@@ -689,14 +708,15 @@ def _refuse(system: System, ch) -> None:
         key, why = "hold.mode", "a latching coil"
     elif d.switch.topology == "full_bridge":
         key, why = "switch.topology", "a full bridge"
-    elif d.coil.eddy_resistance:
-        key, why = "coil.eddy_resistance", "an eddy-current term"
+    elif d.coil.eddy_resistance and (d.coil.flux_current or d.armature is not None or d.hold.mode == "current"):
+        key, why = "coil.eddy_resistance", ("an eddy-current term with a flux-linkage curve, an [armature] "
+                                            "or a current-mode hold")
     elif d.supply.boosted:
         key, why = "supply.boost", "a boosted peak"
     if why is not None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
-                         "in a system yet; expected a linear coil (an [armature] may move it) or a flux-linkage "
-                         "curve (a voltage-mode hold, no [armature]), one switch and a "
+                         "in a system yet; expected a linear coil (with an [armature] or an eddy term, not both) "
+                         "or a flux-linkage curve (no [armature], no eddy term), one switch and a "
                          "voltage-mode fixed, supply-table or closed-loop hold, or a current-mode hold")
 
 
@@ -720,7 +740,7 @@ def _droop(system: System, channels, designs, rails, offsets, params) -> dict:
         return {}
     out = {}
     for name, ks in rails.items():
-        if any(designs[k].drive.coil.flux_current for k in ks):
+        if any(designs[k].drive.coil.flux_current or designs[k].drive.coil.eddy_resistance for k in ks):
             out[name] = _droop_bound(system, channels, designs, ks, offsets, params)
             continue
         r_on, r_off, v_off, l, tp, duty = [], [], [], [], [], []
@@ -774,8 +794,8 @@ def _droop(system: System, channels, designs, rails, offsets, params) -> dict:
 
 
 def _droop_bound(system: System, channels, designs, ks, offsets, params) -> dict:
-    """:func:`_droop`'s figures for a rail with a saturating coil on it, from the channels'
-    rail-current bounds (:func:`bus_from_bound`) at the lowest supply: a bound from below,
+    """:func:`_droop`'s figures for a rail with a saturating coil or an eddy term on it, from
+    the channels' rail-current bounds (:func:`bus_from_bound`) at the lowest supply: a bound from below,
     peaks and holds included (the shared rail's exact solution is for linear coils)."""
     s = system.supply
     v = channels[ks[0]].drive.supply.min
@@ -785,7 +805,7 @@ def _droop_bound(system: System, channels, designs, ks, offsets, params) -> dict
             "lowest_bus_together_v": rows["together"][0], "lowest_bus_together_time_s": rows["together"][1],
             "lowest_bus_staggered_v": rows["staggered"][0], "lowest_bus_staggered_time_s": rows["staggered"][1],
             "droop_method": ("a bound from the channels' rail-current bounds at the lowest supply, peaks "
-                             "and holds (a saturating coil is on the rail)"),
+                             "and holds (a saturating coil or an eddy term is on the rail)"),
             "hold_droop_v": s.source_resistance * sum(
                 designs[k].hold.max_mean_current_a * designs[k].hold.duty for k in ks)}
 
