@@ -44,3 +44,61 @@ def manifold_copy(folder, old: str = "", new: str = "", extra: str = ""):
     text = purge.read_text()
     purge.write_text((text.replace(old, new) if old else text) + extra)
     return folder / "manifold-system.toml"
+
+
+def peaks_droop_ngspice(tmp_path, system, board, name: str) -> float:
+    """ngspice's lowest bus (V) with every channel of ``system`` (``design --json``)
+    switched on together behind its rail's ``R_s`` and ``C`` at the lowest supply, up to
+    the first peak's end: each coil cold (ambient.min), R and L at their low tolerance
+    ends, its switch loop (two switches on a full bridge) and sense resistor in series,
+    its inductance shunted by ``coil.eddy_resistance`` when it has one."""
+    from ngspice_run import OPTIONS, run
+
+    from coildrive.config import load_drive
+
+    rail = system["rails"][0]
+    v_s = rail["supply_v"]
+    lines = [f"* {name}: the channels on one bus", f"VS src 0 DC {v_s!r}",
+             f"RS src bus {rail['source_resistance_ohm']!r}", f"C1 bus 0 {rail['capacitance_f']!r} IC={v_s!r}"]
+    ends = []
+    for k, ch in enumerate(system["channels"]):
+        drv = load_drive(ch["drive_file"], board)
+        c = drv.coil
+        switches = 2 if drv.switch.topology == "full_bridge" else 1
+        r = c.resistance * (1 + 0.00393 * (drv.ambient.min - c.reference_temp)) * (1 - c.resistance_tolerance) \
+            + switches * drv.switch.on_resistance + drv.board.sense.resistance     # copper: IEC 60028
+        lines += [f"R{k} bus a{k} {r!r}", f"L{k} a{k} 0 {c.inductance * (1 - c.inductance_tolerance)!r} IC=0"]
+        if c.eddy_resistance:
+            lines.append(f"RE{k} a{k} 0 {c.eddy_resistance!r}")
+        ends.append(ch["design"]["pull_in"]["peak_ticks"] / drv.board.tick.rate)
+    t_end = min(ends)
+    step = t_end / 20000
+    lines += [OPTIONS, f".tran {step!r} {t_end!r} 0 {step!r} UIC", ".meas tran vlow MIN v(bus)", ".end", ""]
+    return run(tmp_path, name, "\n".join(lines))["vlow"]
+
+
+def assert_staggered_within_limit(system, branch) -> float:
+    """The dense sweep (:func:`rail_worst`) of ``system``'s rail with ``branch``: never
+    above the limit, never above the design's own bound, with a stagger; the worst (A)."""
+    worst = rail_worst(system["channels"], branch)
+    assert worst <= system["current_limit_a"], worst
+    assert system["rails"][0]["peak_current_staggered_a"] >= worst - 1e-12
+    assert system["stagger_ticks"] > 0
+    return worst
+
+
+def firmware_lookup(d, drv, v: float) -> tuple[float, float]:
+    """``(peak s, duty)`` the firmware looks up in a channel's design JSON ``d`` at supply
+    ``v`` V (the nominal reading, truncated to an ADC code)."""
+    b = drv.board
+    code = np.floor(v / b.supply_sense.divider / (b.adc.reference / 2**b.adc.bits))
+    pk = d.get("peak_table") or {"adc_codes": [0], "peak_ticks": [d["pull_in"]["peak_ticks"]]}
+    dt = d["duty_table"]
+    k = max(0, int(np.searchsorted(pk["adc_codes"], code, side="right")) - 1)
+    j = max(0, int(np.searchsorted(dt["adc_codes"], code, side="right")) - 1)
+    return pk["peak_ticks"][k] / b.tick.rate, dt["compare_ticks"][j] / d["timer"]["period_ticks"]
+
+
+def readable(ch, v: float) -> list[dict]:
+    """A channel's branches whose supply range holds ``v`` V."""
+    return [b for b in ch["bound"]["branches"] if b["supply_low_v"] <= v <= b["supply_v"]]

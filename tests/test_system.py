@@ -20,6 +20,7 @@ Outside references, named beside each check:
 from __future__ import annotations
 
 import json
+import re
 import subprocess
 
 import numpy as np
@@ -328,15 +329,15 @@ def test_windows_that_do_not_overlap_name_the_channel(tmp_path):
 
 
 @pytest.mark.parametrize("extra, key", [
-    ('[switch]\ntopology = "full_bridge"\n\n[freewheel]\ntype = "diode"\ndiode_drop = "0.9 V"\n',
-     "switch.topology")])
+    ('boost = "48 V"\nboost_capacitance = "100 uF"\nboost_power = "5 W"\n', "supply.boost")])
 def test_a_channel_the_bound_does_not_model_is_refused(tmp_path, extra, key):
-    # the rail's bound has no full bridge (its supply draw and returned energy) yet
+    # the rail's bound has no boosted peak (the converter's recharge draw) yet
     path = _system(tmp_path, BASE)
     purge = tmp_path / "purge-valve-24v.toml"
     text = purge.read_text()
-    assert "split_decay = true" in text
-    purge.write_text(text.split("[freewheel]")[0] + extra)
+    assert 'max = "28 V"\n' in text
+    text = re.sub(r"compensate = true.*\n", "", text.split("[freewheel]")[0])   # (a boost refuses them)
+    purge.write_text(text.replace('max = "28 V"\n', 'max = "28 V"\n' + extra, 1))
     p = run_cli("design", str(path))
     line = p.stderr.strip()
     assert p.returncode == 2 and "\n" not in line and key in line and "'purge1'" in line, line

@@ -23,7 +23,7 @@ import pytest
 from typer.testing import CliRunner
 
 from conftest import BOARDS, EXAMPLES
-from rail_reference import linear_tail, rail_worst
+from rail_reference import assert_staggered_within_limit, linear_tail
 
 from coildrive.cli import app
 from coildrive.config import load_drive
@@ -242,15 +242,10 @@ def test_staggered_total_never_above_the_limit(system):
     """A dense sweep (1e5 points, numpy) of the rail's bound written afresh (:func:`_rise`
     in the peak, the hold's top plus the excess's decay after it) at every supply where
     the readable branches change: never above the limit with the stagger found."""
-    limit = system["current_limit_a"]
-
     def branch(t, b):
         return np.where(t < 0, 0, np.where(t <= b["peak_s"], _rise(t, b), linear_tail(t, b)))
 
-    worst = rail_worst(system["channels"], branch)
-    assert worst <= limit, worst
-    assert system["rails"][0]["peak_current_staggered_a"] >= worst - 1e-12
-    assert system["stagger_ticks"] > 0
+    assert_staggered_within_limit(system, branch)
 
 
 def test_droop_with_armatures_never_above_the_simulated_bus(system):

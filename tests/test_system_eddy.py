@@ -23,8 +23,8 @@ import pytest
 from typer.testing import CliRunner
 
 from conftest import BOARDS
-from ngspice_run import OPTIONS, run
-from rail_reference import linear_tail, manifold_copy, rail_worst
+from rail_reference import (assert_staggered_within_limit, firmware_lookup, linear_tail, manifold_copy,
+                            peaks_droop_ngspice, readable)
 
 from coildrive.cli import app
 from coildrive.config import load_drive
@@ -92,12 +92,8 @@ def test_eddy_bound_never_below_the_worst(system):
     period = 1 / d["hold"]["frequency_hz"]
     ratios = []
     for v in (drv.supply.min, codes[len(codes) // 2] * lsb - 1e-6, drv.supply.max):
-        code = np.floor(v / lsb)
-        peak = d["peak_table"]["peak_ticks"][max(0, int(np.searchsorted(codes, code, side="right")) - 1)] / b0.tick.rate
-        dt = d["duty_table"]
-        duty = dt["compare_ticks"][max(0, int(np.searchsorted(dt["adc_codes"], code, side="right")) - 1)] \
-            / d["timer"]["period_ticks"]
-        readable = [b for b in ch["bound"]["branches"] if b["supply_low_v"] <= v <= b["supply_v"]]
+        peak, duty = firmware_lookup(d, drv, v)
+        branches = readable(ch, v)
         worst = 0.0
         for r_f in (1 - c.resistance_tolerance, 1 + c.resistance_tolerance):
             r_coil = c.resistance * (1 + 0.00393 * (drv.ambient.min - c.reference_temp)) * r_f
@@ -118,10 +114,10 @@ def test_eddy_bound_never_below_the_worst(system):
                     ts.append(t0 + duty * period + s * (1 - duty) * period), cs.append(term)
                     last = i_m[-1]
                 t, i = np.concatenate(ts), np.concatenate(cs)
-                bound = np.max([_branch(t, b) for b in readable], axis=0)
+                bound = np.max([_branch(t, b) for b in branches], axis=0)
                 assert np.all(i <= bound + 1e-9), (v, r_f, l_f, float(np.max(i - bound)))
-        ratios.append(max(b["peak_end_a"] for b in readable) / worst)
-        b = readable[0]
+        ratios.append(max(b["peak_end_a"] for b in branches) / worst)
+        b = branches[0]
         assert abs(_rise(0.0, b) - b["supply_v"] / (b["resistance_ohm"] + r_e)) < 1e-12   # the step
         own = _on(np.array([b["peak_s"]]), 0.0, b["supply_v"], b["resistance_ohm"],
                   c.inductance * (1 - c.inductance_tolerance), r_e)[1][0]
@@ -133,10 +129,7 @@ def test_eddy_bound_never_below_the_worst(system):
 def test_staggered_total_never_above_the_limit(system):
     """A dense sweep (1e5 points, numpy) of the rail's bound written afresh: never above
     the limit with the stagger found."""
-    worst = rail_worst(system["channels"], _branch)
-    assert worst <= system["current_limit_a"], worst
-    assert system["rails"][0]["peak_current_staggered_a"] >= worst - 1e-12
-    assert system["stagger_ticks"] > 0
+    assert_staggered_within_limit(system, _branch)
 
 
 def test_droop_bound_never_above_ngspice(tmp_path, system):
@@ -144,23 +137,8 @@ def test_droop_bound_never_above_ngspice(tmp_path, system):
     together behind the system's R_s and C at the lowest supply, cold, R and L low, up to
     the first peak's end: the reported lowest bus (a bound) is never above ngspice's."""
     rail = system["rails"][0]
-    v_s, r_s, cap = rail["supply_v"], rail["source_resistance_ohm"], rail["capacitance_f"]
-    lines = ["* six coils on one bus, two with an eddy resistance", f"VS src 0 DC {v_s!r}",
-             f"RS src bus {r_s!r}", f"C1 bus 0 {cap!r} IC={v_s!r}"]
-    ends = []
-    for k, ch in enumerate(system["channels"]):
-        drv = load_drive(ch["drive_file"], BOARD)
-        c = drv.coil
-        r = c.resistance * (1 + 0.00393 * (drv.ambient.min - c.reference_temp)) * (1 - c.resistance_tolerance) \
-            + drv.switch.on_resistance + drv.board.sense.resistance
-        lines += [f"R{k} bus a{k} {r!r}", f"L{k} a{k} 0 {c.inductance * (1 - c.inductance_tolerance)!r} IC=0"]
-        if c.eddy_resistance:
-            lines.append(f"RE{k} a{k} 0 {c.eddy_resistance!r}")
-        ends.append(ch["design"]["pull_in"]["peak_ticks"] / drv.board.tick.rate)
-    t_end = min(ends)
-    step = t_end / 20000
-    lines += [OPTIONS, f".tran {step!r} {t_end!r} 0 {step!r} UIC", ".meas tran vlow MIN v(bus)", ".end", ""]
-    got = run(tmp_path, "eddy-droop", "\n".join(lines))
+    v_s = rail["supply_v"]
+    got = {"vlow": peaks_droop_ngspice(tmp_path, system, BOARD, "eddy-droop")}
     print(f"reported {rail['lowest_bus_together_v']:.4f} V, ngspice {got['vlow']:.4f} V")
     # ngspice transient: within 1 mV
     assert rail["lowest_bus_together_v"] <= got["vlow"] + 1e-3

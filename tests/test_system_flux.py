@@ -19,7 +19,7 @@ import pytest
 from typer.testing import CliRunner
 
 from conftest import BOARDS
-from rail_reference import linear_tail, manifold_copy, rail_worst
+from rail_reference import assert_staggered_within_limit, firmware_lookup, linear_tail, manifold_copy, readable
 
 from coildrive.cli import app
 from coildrive.config import load_drive
@@ -76,17 +76,6 @@ def _segment(ld, scale, i0, v, r, t0, t1, n=12):
     return grid, i, float(i[-1])
 
 
-def _firmware(d, drv, v):
-    """The peak (s) and duty the firmware looks up at supply ``v`` (nominal reading)."""
-    b = drv.board
-    code = np.floor(v / b.supply_sense.divider / (b.adc.reference / 2**b.adc.bits))
-    pk = d.get("peak_table") or {"adc_codes": [0], "peak_ticks": [d["pull_in"]["peak_ticks"]]}
-    k = max(0, int(np.searchsorted(pk["adc_codes"], code, side="right")) - 1)
-    dt = d["duty_table"]
-    j = max(0, int(np.searchsorted(dt["adc_codes"], code, side="right")) - 1)
-    return pk["peak_ticks"][k] / b.tick.rate, dt["compare_ticks"][j] / d["timer"]["period_ticks"]
-
-
 def _branch(t, b):
     """A branch's bound from its tables (the next tabulated value up), written afresh."""
     t = np.asarray(t, float)
@@ -117,8 +106,8 @@ def test_curve_bound_never_below_the_simulated_worst(system):
     period = 1 / d["hold"]["frequency_hz"]
     ratios = []
     for v in (drv.supply.min, codes[len(codes) // 2] * lsb - 1e-6, drv.supply.max):
-        peak, duty = _firmware(d, drv, v)
-        readable = [b for b in ch["bound"]["branches"] if b["supply_low_v"] <= v <= b["supply_v"]]
+        peak, duty = firmware_lookup(d, drv, v)
+        branches = readable(ch, v)
         worst_peak = 0.0
         for r_f in (1 - tol_r, 1 + tol_r):
             r_on, r_off, v_fw = _loop(drv, drv.ambient.min, r_f)
@@ -134,11 +123,11 @@ def test_curve_bound_never_below_the_simulated_worst(system):
                     t, i, last = _segment(ld, l_f, last, -v_fw, r_off, t0 + duty * period, t0 + period)
                     ts.append(t), cs.append(i)
                 t, i = np.concatenate(ts), np.concatenate(cs)
-                bound = np.max([_branch(t, b) for b in readable], axis=0)
+                bound = np.max([_branch(t, b) for b in branches], axis=0)
                 assert np.all(i <= bound + 1e-9), (v, r_f, l_f, float(np.max(i - bound)))
-        ratios.append(max(b["peak_end_a"] for b in readable) / worst_peak)
+        ratios.append(max(b["peak_end_a"] for b in branches) / worst_peak)
         # like for like: the branch's own corner (its top supply, lowest R and scale)
-        b = readable[0]
+        b = branches[0]
         exact = _segment(ld, 1 - tol_l, 0.0, b["supply_v"], b["resistance_ohm"], 0.0, b["peak_s"])[2]
         assert exact * (1 - 1e-7) <= b["peak_end_a"] <= exact * 1.01, (exact, b["peak_end_a"])
     print("bound / simulated worst over the peak:", [round(x, 4) for x in ratios])
@@ -149,18 +138,13 @@ def test_staggered_total_never_above_the_limit(system):
     """A dense sweep (1e5 points, numpy) of the rail's bound (the curve's tables, the
     linear channels' exponentials, written afresh) at every supply where the readable
     branches change: never above the limit with the stagger found."""
-    limit = system["current_limit_a"]
-
     def branch(t, b):
         if "rise_time_s" in b:
             return _branch(t, b)
         rise = b["supply_v"] / b["resistance_ohm"] * (1 - np.exp(-np.maximum(t, 0) * b["resistance_ohm"] / b["inductance_h"]))
         return np.where(t < 0, 0, np.where(t <= b["peak_s"], rise, linear_tail(t, b)))
 
-    worst = rail_worst(system["channels"], branch)
-    assert worst <= limit, worst
-    assert system["rails"][0]["peak_current_staggered_a"] >= worst - 1e-12
-    assert system["stagger_ticks"] > 0
+    assert_staggered_within_limit(system, branch)
 
 
 def test_droop_bound_never_above_the_simulated_bus(system):

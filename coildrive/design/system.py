@@ -225,14 +225,15 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             cands = [hi] + [top_of(c) for c in duty_codes[1:] if lo < top_of(c) < hi] if duty_codes else [hi]
             cold = loops(np.array(cands)[:, None], t_cold)
             duty_hi = np.asarray(duty_of(low_code(np.array(cands))), float)[:, None]
-            orbit = pwm.pwm_steady_state(duty_hi, f, cold.v_on, cold.r_on, cold.r_off, cold.v_off, cold.inductance)
+            orbit = pwm.pwm_steady_state(duty_hi, f, cold.v_on, cold.r_on, cold.r_off, cold.v_off, cold.inductance,
+                                         mixed=cold.mixed)
             # the draw is the terminal current (with an eddy term: the magnetising current's
             # step up at each switch-on; the state, i_min below, is the magnetising current)
             hold_top = float(np.max(orbit.i_max if orbit.terminal_max is None else orbit.terminal_max))
             hot = loops(lo, t_hot)
             duty_lo = float(duty_of(high_code(np.array([hi])))[0])
             bottom = float(np.min(pwm.pwm_steady_state(duty_lo, f, hot.v_on, hot.r_on, hot.r_off, hot.v_off,
-                                                       hot.inductance).i_min))
+                                                       hot.inductance, mixed=hot.mixed).i_min))
             settle_s = 1.0 / f
         top_cold = loops(hi, t_cold)
         r_on = float(np.min(top_cold.r_on))
@@ -246,6 +247,8 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             coil = scale * float(curve.incremental(0.0))
         l_min, l_max = float(np.min(coil)), float(np.max(coil))
         r_slow = float(np.min(np.minimum(top_cold.r_on, top_cold.r_off)))
+        if top_cold.mixed is not None:     # a full bridge's mixed decay: its fast path too
+            r_slow = min(r_slow, float(np.min(top_cold.mixed.r_fast)))
         tp = ticks / rate_tick
         # the inductance range in TAIL_SPLITS parts: a part's excess at its lowest L, its
         # decay at its highest
@@ -618,6 +621,17 @@ def design_system(system: System) -> SystemResult:
             for k in ks:
                 params[k] = channel_bound_params(designs[k], reading[name])
         staggered[name] = got
+    for name, ks in rails.items():
+        bridges = [channels[k].name for k in ks if designs[k].drive.switch.topology == "full_bridge"]
+        if bridges:
+            checks.append(Check(
+                "shared_rail_return", False,
+                f"full bridge channel(s) {bridges} return their coil's energy into the shared rail at each "
+                "fast decay (the release, and a mixed-decay hold's off-times): the rail's current bound "
+                "leaves that return out (the safe side for the current), but the rail's rise is checked "
+                "only per channel against its drive file's [supply] sink and capacitance, not for several "
+                "releasing together -- keep their releases apart or let the supply sink the current, and "
+                "check the bus capacitor's rating", severity="warning"))
     hold_avg = {name: sum(designs[k].hold.max_mean_current_a * designs[k].hold.duty for k in ks)
                 for name, ks in rails.items()}
     droop = _droop(system, channels, designs, rails, offsets, params)
@@ -696,7 +710,8 @@ def rail_curves(result: SystemResult, points: int = 6000) -> list[dict]:
 
 def _refuse(system: System, ch) -> None:
     """What the rail's current bound is made for: a linear coil (with a moving armature or
-    an eddy term, not both) or a flux-linkage curve (neither; voltage-mode), a voltage-mode (fixed, supply-table or closed-loop) or current-mode hold and one
+    an eddy term, not both) or a flux-linkage curve (neither; voltage-mode), on one switch
+    or a full bridge, a voltage-mode (fixed, supply-table or closed-loop) or current-mode hold and one
     switch. Anything else is refused in one line."""
     d = ch.drive
     why = None
@@ -706,8 +721,6 @@ def _refuse(system: System, ch) -> None:
         key, why = "hold.mode", "a current-mode hold with a flux-linkage curve"
     elif d.hold.mode == "latch":
         key, why = "hold.mode", "a latching coil"
-    elif d.switch.topology == "full_bridge":
-        key, why = "switch.topology", "a full bridge"
     elif d.coil.eddy_resistance and (d.coil.flux_current or d.armature is not None or d.hold.mode == "current"):
         key, why = "coil.eddy_resistance", ("an eddy-current term with a flux-linkage curve, an [armature] "
                                             "or a current-mode hold")
@@ -716,7 +729,7 @@ def _refuse(system: System, ch) -> None:
     if why is not None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
                          "in a system yet; expected a linear coil (with an [armature] or an eddy term, not both) "
-                         "or a flux-linkage curve (no [armature], no eddy term), one switch and a "
+                         "or a flux-linkage curve (no [armature], no eddy term), one switch or a full bridge and a "
                          "voltage-mode fixed, supply-table or closed-loop hold, or a current-mode hold")
 
 
@@ -740,7 +753,8 @@ def _droop(system: System, channels, designs, rails, offsets, params) -> dict:
         return {}
     out = {}
     for name, ks in rails.items():
-        if any(designs[k].drive.coil.flux_current or designs[k].drive.coil.eddy_resistance for k in ks):
+        if any(designs[k].drive.coil.flux_current or designs[k].drive.coil.eddy_resistance
+               or designs[k].drive.switch.topology == "full_bridge" for k in ks):
             out[name] = _droop_bound(system, channels, designs, ks, offsets, params)
             continue
         r_on, r_off, v_off, l, tp, duty = [], [], [], [], [], []
@@ -794,8 +808,8 @@ def _droop(system: System, channels, designs, rails, offsets, params) -> dict:
 
 
 def _droop_bound(system: System, channels, designs, ks, offsets, params) -> dict:
-    """:func:`_droop`'s figures for a rail with a saturating coil or an eddy term on it, from
-    the channels' rail-current bounds (:func:`bus_from_bound`) at the lowest supply: a bound from below,
+    """:func:`_droop`'s figures for a rail with a saturating coil, an eddy term or a full
+    bridge on it, from the channels' rail-current bounds (:func:`bus_from_bound`) at the lowest supply: a bound from below,
     peaks and holds included (the shared rail's exact solution is for linear coils)."""
     s = system.supply
     v = channels[ks[0]].drive.supply.min
@@ -805,7 +819,8 @@ def _droop_bound(system: System, channels, designs, ks, offsets, params) -> dict
             "lowest_bus_together_v": rows["together"][0], "lowest_bus_together_time_s": rows["together"][1],
             "lowest_bus_staggered_v": rows["staggered"][0], "lowest_bus_staggered_time_s": rows["staggered"][1],
             "droop_method": ("a bound from the channels' rail-current bounds at the lowest supply, peaks "
-                             "and holds (a saturating coil or an eddy term is on the rail)"),
+                             "and holds (a saturating coil, an eddy term or a full bridge is on the rail; a "
+                             "bridge's fast decay returning energy only lifts the bus)"),
             "hold_droop_v": s.source_resistance * sum(
                 designs[k].hold.max_mean_current_a * designs[k].hold.duty for k in ks)}
 
