@@ -20,6 +20,12 @@
   their PWM holds included (:mod:`coildrive.model.shared_bus`), with the system's
   ``[supply]`` source resistance and bulk capacitance;
 * **the heat** in the shared freewheel parts and in the board.
+
+A channel is a linear coil, with a moving armature (:mod:`coildrive.model.armature_bound`)
+or an eddy term, or a flux-linkage curve (:mod:`coildrive.model.flux_bound`), on one
+switch or a full bridge; a latching coil and a boosted peak are refused in one line
+(:func:`_refuse`). A rail with a curve, an eddy term or a bridge on it takes its droop
+from the rail-current bounds (:func:`bus_from_bound`).
 """
 
 from __future__ import annotations
