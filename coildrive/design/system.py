@@ -20,6 +20,12 @@
   their PWM holds included (:mod:`coildrive.model.shared_bus`), with the system's
   ``[supply]`` source resistance and bulk capacitance;
 * **the heat** in the shared freewheel parts and in the board.
+
+A channel is a linear coil, with a moving armature (:mod:`coildrive.model.armature_bound`)
+or an eddy term, or a flux-linkage curve (:mod:`coildrive.model.flux_bound`), on one
+switch or a full bridge; a latching coil and a boosted peak are refused in one line
+(:func:`_refuse`). A rail with a curve, an eddy term or a bridge on it takes its droop
+from the rail-current bounds (:func:`bus_from_bound`).
 """
 
 from __future__ import annotations
@@ -30,7 +36,7 @@ import math
 import numpy as np
 
 from ..errors import InputError
-from ..model import circuit, pwm, shared_bus
+from ..model import armature_bound, circuit, eddy, flux, flux_bound, magnet, pwm, shared_bus
 from ..system_file import System, with_timer
 from . import envelope
 from .envelope import table_index
@@ -81,12 +87,32 @@ PIECE_S = 10e-6
 TAIL_SPLITS = 6
 
 
+def _branch_rise(t, b: dict):
+    """The bound (A) of one branch's peak ``t`` s after switch-on: the stiff-bus rise
+    ``V/R (1 - exp(-t R/L))``, or with a moving armature
+    :func:`~coildrive.model.armature_bound.peak_rise`."""
+    if "rise_time_s" in b:
+        return flux_bound.table_current(t, b["rise_time_s"], b["rise_current_a"])
+    if "eddy_resistance_ohm" in b:
+        # i = (V + R_e i_m)/(R + R_e), i_m = V/R (1 - exp(-t R_th/L)), R_th = R R_e/(R + R_e)
+        v, r, r_e = b["supply_v"], b["resistance_ohm"], b["eddy_resistance_ohm"]
+        i_m = v / r * -np.expm1(-np.clip(t, 0.0, None) * r * r_e / ((r + r_e) * b["inductance_h"]))
+        return np.where(np.asarray(t) < 0, 0.0, (v + r_e * i_m) / (r + r_e))
+    if "closing_s" in b:
+        return armature_bound.peak_rise(t, b["supply_v"], b["resistance_ohm"], b["inductance_h"],
+                                        b["closed_inductance_h"], b["flux_ratio"], b["closing_s"])
+    return b["supply_v"] / b["resistance_ohm"] * -np.expm1(
+        -np.clip(t, 0.0, None) * b["resistance_ohm"] / b["inductance_h"])
+
+
 def _branch_parts(t, b: dict):
     """``(rise, tail)`` (A) of one branch ``t`` s after switch-on, each as if it held there."""
     t = np.asarray(t, float)
-    rise = b["supply_v"] / b["resistance_ohm"] * -np.expm1(
-        -np.clip(t, 0.0, None) * b["resistance_ohm"] / b["inductance_h"])
+    rise = _branch_rise(t, b)
     age = np.clip(t - b["peak_s"] - b["pwm_period_s"], 0.0, None)
+    if "tail_flux_wb" in b:     # a saturating coil: the flux excess left (model/flux_bound.py)
+        left = b["tail_flux_wb"][-1] * np.exp(-age * b["slow_resistance_ohm"] / b["tail_inductance_h"][0])
+        return rise, flux_bound.table_current(left, b["tail_flux_wb"], b["tail_current_a"])
     tail = b["hold_top_a"] + np.max([e * np.exp(-age * b["slow_resistance_ohm"] / l)
                                      for e, l in zip(b["excess_a"], b["tail_inductance_h"])], axis=0)
     return rise, tail
@@ -105,7 +131,7 @@ def _piece_draw(u, w, b: dict):
     within the peak, else the tail at ``u`` (its value just after the peak's end where
     ``u`` is that end: the tail starts above the rise)."""
     mid = 0.5 * (u + w)
-    rise = _branch_parts(w, b)[0]
+    rise = _branch_rise(np.minimum(w, b["peak_s"]), b)      # the rise is within the peak
     tail = _branch_parts(u, b)[1]
     return np.where(mid < 0, 0.0, np.where(mid < b["peak_s"], rise, tail))
 
@@ -160,7 +186,9 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
     tolerance corner, cold coil) at the highest duty readable there -- the duty entry read
     low, at the top of the range and just below each duty-table step inside it. The excess
     over the orbit's bottom is taken against the lowest bottom in the range (its lowest
-    supply and readable duty, the hottest coil of the design's corners)."""
+    supply and readable duty, the hottest coil of the design's corners). With a moving
+    armature the peak's rise is :func:`_armature_rise`'s (the open coil's while the armature
+    is proved to only close) and the tail is the seated coil's, one part."""
     drive = d.drive
     b = drive.board
     rate_tick = b.tick.rate
@@ -203,28 +231,87 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             cands = [hi] + [top_of(c) for c in duty_codes[1:] if lo < top_of(c) < hi] if duty_codes else [hi]
             cold = loops(np.array(cands)[:, None], t_cold)
             duty_hi = np.asarray(duty_of(low_code(np.array(cands))), float)[:, None]
-            hold_top = float(np.max(pwm.pwm_steady_state(duty_hi, f, cold.v_on, cold.r_on, cold.r_off,
-                                                         cold.v_off, cold.inductance).i_max))
+            orbit = pwm.pwm_steady_state(duty_hi, f, cold.v_on, cold.r_on, cold.r_off, cold.v_off, cold.inductance,
+                                         mixed=cold.mixed)
+            # the draw is the terminal current (with an eddy term: the magnetising current's
+            # step up at each switch-on; the state, i_min below, is the magnetising current)
+            hold_top = float(np.max(orbit.i_max if orbit.terminal_max is None else orbit.terminal_max))
             hot = loops(lo, t_hot)
             duty_lo = float(duty_of(high_code(np.array([hi])))[0])
             bottom = float(np.min(pwm.pwm_steady_state(duty_lo, f, hot.v_on, hot.r_on, hot.r_off, hot.v_off,
-                                                       hot.inductance).i_min))
+                                                       hot.inductance, mixed=hot.mixed).i_min))
             settle_s = 1.0 / f
         top_cold = loops(hi, t_cold)
         r_on = float(np.min(top_cold.r_on))
-        l_min, l_max = float(np.min(top_cold.inductance)), float(np.max(top_cold.inductance))
+        coil = top_cold.inductance
+        r_eddy = None
+        if isinstance(coil, eddy.EddyCoil):       # (linear: a curve under it is refused)
+            r_eddy, coil = float(np.min(coil.resistance)), coil.magnetising
+        curve = coil.curve if isinstance(coil, flux.FluxCoil) else None
+        if curve is not None:     # a saturating coil: its small-signal range (reports only)
+            scale = np.asarray(coil.scale, float)
+            coil = scale * float(curve.incremental(0.0))
+        l_min, l_max = float(np.min(coil)), float(np.max(coil))
         r_slow = float(np.min(np.minimum(top_cold.r_on, top_cold.r_off)))
+        if top_cold.mixed is not None:     # a full bridge's mixed decay: its fast path too
+            r_slow = min(r_slow, float(np.min(top_cold.mixed.r_fast)))
         tp = ticks / rate_tick
         # the inductance range in TAIL_SPLITS parts: a part's excess at its lowest L, its
         # decay at its highest
         ends = np.linspace(l_min, l_max, TAIL_SPLITS + 1) if l_max > l_min else np.array([l_min, l_min])
         i_pe = hi / r_on * -np.expm1(-tp * r_on / ends[:-1])
-        branches.append({"supply_v": hi, "supply_low_v": lo, "resistance_ohm": r_on, "inductance_h": l_min,
-                         "peak_s": tp, "peak_end_a": float(i_pe[0]), "hold_top_a": hold_top,
+        branch = {"supply_v": hi, "supply_low_v": lo, "resistance_ohm": r_on, "inductance_h": l_min,
+                  "peak_s": tp}
+        peak_end = {}             # the peak's end current where the excess is not measured from it
+        if drive.armature is not None:
+            branch.update(_armature_rise(drive.armature, hi, r_on, l_min, l_max, tp))
+            # the peak's end current is bounded at the open gap, its decay at the seated
+            # coil's highest inductance: one part
+            i_pe, ends = np.array([float(_branch_rise(tp, branch))]), np.array([l_min, l_max])
+        elif r_eddy is not None:
+            # the terminal current's step and rise (model/eddy.py's Thevenin pair); the tail
+            # on the magnetising current, decaying at the slowest Thevenin rate: one part
+            branch["eddy_resistance_ohm"] = r_eddy
+            r_th = r_eddy * np.minimum(top_cold.r_on, top_cold.r_off) / (np.minimum(top_cold.r_on, top_cold.r_off) + r_eddy)
+            r_slow = float(np.min(r_th))
+            i_pe = np.array([hi / r_on * -np.expm1(-tp * r_on * r_eddy / ((r_on + r_eddy) * l_min))])
+            ends = np.array([l_min, l_max])
+            peak_end["a"] = float(_branch_rise(tp, branch))
+        elif curve is not None:
+            # the exact rise at the lowest scale, tabulated; the tail's excess and decay on
+            # the flux (model/flux_bound.py): one part
+            times, currents = flux_bound.rise_table(flux.FluxCoil(curve, float(scale.min())), hi, r_on, tp)
+            branch.update({"rise_time_s": [float(x) for x in times], "rise_current_a": [float(x) for x in currents]})
+            ripple = hi * float(np.max(duty_hi)) / f / float(scale.min())
+            tail = flux_bound.tail_excess(curve, float(currents[-1]), hold_top, ripple)
+            branch.update({"tail_flux_wb": [float(x) for x in tail["table"][0]],
+                           "tail_current_a": [float(x) for x in tail["table"][1]],
+                           "top_a": max(float(currents[-1]), tail["reach_a"])})
+            i_pe = np.array([bottom + tail["excess_a"]])
+            ends = np.array([l_min, tail["l_max_h"] * float(scale.max())])
+            peak_end["a"] = float(currents[-1])
+        branches.append({**branch, "peak_end_a": float(peak_end.get("a", i_pe[0])), "hold_top_a": hold_top,
                          "excess_a": [max(0.0, float(x) - bottom) for x in i_pe],
                          "tail_inductance_h": [float(x) for x in ends[1:]],
                          "slow_resistance_ohm": r_slow, "pwm_period_s": settle_s})
     return {"reading_droop_v": reading_droop_v, **_summary(branches)}
+
+
+def _armature_rise(arm, supply: float, r_on: float, lc_low: float, lc_high: float, peak_s: float) -> dict:
+    """The keys a moving armature's branch adds (:func:`coildrive.model.armature_bound.peak_rise`):
+    ``inductance_h`` the lowest open inductance (the rise while the armature only closes),
+    ``closed_inductance_h`` the lowest seated one and ``flux_ratio`` ``L_c/L_open`` (the
+    any-motion bound), ``closing_s`` the time up to which the armature is proved to only
+    close (the earliest start plus :func:`~coildrive.model.armature_bound.closing_window`;
+    the peak's length when that covers it). ``lc_low``/``lc_high``: the loop's seated
+    inductance range (H) over the tolerances."""
+    ratio = arm.inductance_closed / arm.inductance_open
+    _, beta = magnet.fit_gap(arm.inductance_open, arm.inductance_closed, arm.stroke)
+    start = armature_bound.earliest_start(supply, r_on, lc_low / ratio, lc_high, ratio, beta,
+                                          arm.spring_preload + arm.load_force)
+    closing = start + armature_bound.closing_window(arm.mass, arm.damping, arm.spring_rate, arm.restitution)
+    return {"inductance_h": lc_low / ratio, "closed_inductance_h": lc_low, "flux_ratio": ratio,
+            "closing_s": min(closing, peak_s)}
 
 
 def _current_mode_hold(d):
@@ -270,7 +357,7 @@ def _summary(branches: list[dict]) -> dict:
             "pwm_period_s": max(x["pwm_period_s"] for x in branches),
             "hold_top_a": max(x["hold_top_a"] for x in branches),
             "excess_a": max(x["excess_a"][0] for x in branches),
-            "top_a": max(x["hold_top_a"] + x["excess_a"][0] for x in branches),
+            "top_a": max(x.get("top_a", x["hold_top_a"] + x["excess_a"][0]) for x in branches),
             "rate_per_s": min(x["slow_resistance_ohm"] / x["tail_inductance_h"][-1] for x in branches)}
 
 
@@ -311,6 +398,20 @@ def total_bound(params: list[dict], offsets, cells=None) -> tuple[float, float]:
     cells and pieces."""
     offsets = np.asarray(offsets, float)
     cells = supply_cells(params) if cells is None else cells
+    u, _, rows = _piece_rows(params, offsets)
+    best, when = -1.0, 0.0
+    for _, _, cell in cells:
+        total = sum(r[idx].max(axis=0) for r, idx in zip(rows, cell))
+        k = int(np.argmax(total))
+        if total[k] > best:
+            best, when = float(total[k]), float(u[k])
+    return best, when
+
+
+def _piece_rows(params: list[dict], offsets: np.ndarray):
+    """``(u, w, rows)``: the pieces ``[u, w]`` (s) of :func:`total_bound` -- cut at every
+    switching moment, at most :data:`PIECE_S` long, one past the last moment -- and per
+    channel its branches' upper bounds on each piece (A, branches x pieces)."""
     marks = [offsets]
     for o, p in zip(offsets, params):
         for b in p["branches"]:
@@ -323,16 +424,32 @@ def total_bound(params: list[dict], offsets, cells=None) -> tuple[float, float]:
     k_in = np.arange(len(start)) - np.repeat(np.cumsum(count) - count, count)
     u = start + k_in * step
     w = u + step
-    rows = []
-    for o, p in zip(offsets, params):
-        rows.append(np.array([_piece_draw(u - o, w - o, b) for b in p["branches"]]))
-    best, when = -1.0, 0.0
-    for _, _, cell in cells:
-        total = sum(r[idx].max(axis=0) for r, idx in zip(rows, cell))
-        k = int(np.argmax(total))
-        if total[k] > best:
-            best, when = float(total[k]), float(u[k])
-    return best, when
+    rows = [np.array([_piece_draw(u - o, w - o, b) for b in p["branches"]]) for o, p in zip(offsets, params)]
+    return u, w, rows
+
+
+def bus_from_bound(v_s: float, r_s: float, cap: float, params: list[dict], offsets) -> tuple[float, float]:
+    """``(lowest bus V, time s)``, a bound from below, of a rail at source voltage ``v_s``
+    behind ``r_s`` ohm with ``cap`` F at the board, its channels started at ``offsets``
+    (s) with the rail-current bounds ``params`` (their branches readable at ``v_s``:
+    ``supply_low_v <= v_s``). The droop ``d = v_s - v`` obeys ``R_s C d' = R_s I - d``,
+    a positive linear filter of the rail's current ``I``; each coil's current on the
+    drooped bus is at most its stiff-bus bound (it only grows with the voltage), so ``d``
+    is at most the filter of ``R_s`` x the sum of the bounds, taken piecewise constant at
+    each piece's bound (exact exponentials), and after the last piece -- where the bounds
+    only fall -- at most the larger of its end value and ``R_s`` x the last piece's sum."""
+    low = [_summary([b for b in p["branches"] if b["supply_low_v"] <= v_s] or p["branches"][:1]) for p in params]
+    u, w, rows = _piece_rows(low, np.asarray(offsets, float))
+    total = np.sum([r.max(axis=0) for r in rows], axis=0) * r_s
+    decay = np.exp(-(w - u) / (r_s * cap))
+    d, top, when = 0.0, 0.0, 0.0
+    for k in range(len(u)):
+        d = d * decay[k] + total[k] * (1.0 - decay[k])
+        if d > top:
+            top, when = d, float(w[k])
+    if total[-1] > top:
+        top, when = float(total[-1]), float(w[-1])
+    return v_s - top, when
 
 
 def stagger_bound(params: list[dict], positions: list[int], fixed: list[float | None],
@@ -510,9 +627,20 @@ def design_system(system: System) -> SystemResult:
             for k in ks:
                 params[k] = channel_bound_params(designs[k], reading[name])
         staggered[name] = got
+    for name, ks in rails.items():
+        bridges = [channels[k].name for k in ks if designs[k].drive.switch.topology == "full_bridge"]
+        if bridges:
+            checks.append(Check(
+                "shared_rail_return", False,
+                f"full bridge channel(s) {bridges} return their coil's energy into the shared rail at each "
+                "fast decay (the release, and a mixed-decay hold's off-times): the rail's current bound "
+                "leaves that return out (the safe side for the current), but the rail's rise is checked "
+                "only per channel against its drive file's [supply] sink and capacitance, not for several "
+                "releasing together -- keep their releases apart or let the supply sink the current, and "
+                "check the bus capacitor's rating", severity="warning"))
     hold_avg = {name: sum(designs[k].hold.max_mean_current_a * designs[k].hold.duty for k in ks)
                 for name, ks in rails.items()}
-    droop = _droop(system, channels, designs, rails, offsets)
+    droop = _droop(system, channels, designs, rails, offsets, params)
     heat = _heat(board_ch, channels, designs)
     out = [SystemChannel(c.name, c.number, c.drive.source, offset_ticks[k], offsets[k],
                          c.offset is not None, params[k], d)
@@ -587,26 +715,27 @@ def rail_curves(result: SystemResult, points: int = 6000) -> list[dict]:
 
 
 def _refuse(system: System, ch) -> None:
-    """What the rail's current bound is made for: a linear coil without a moving armature,
-    a voltage-mode (fixed, supply-table or closed-loop) or current-mode hold and one
+    """What the rail's current bound is made for: a linear coil (with a moving armature or
+    an eddy term, not both) or a flux-linkage curve (neither; voltage-mode), on one switch
+    or a full bridge, a voltage-mode (fixed, supply-table or closed-loop) or current-mode hold and one
     switch. Anything else is refused in one line."""
     d = ch.drive
     why = None
-    if d.coil.flux_current:
-        key, why = "coil.flux_current", "a flux-linkage curve"
-    elif d.armature is not None:
-        key, why = "armature", "a moving armature"
+    if d.coil.flux_current and d.armature is not None:
+        key, why = "armature", "a moving armature with a flux-linkage curve"
+    elif d.coil.flux_current and d.hold.mode == "current":
+        key, why = "hold.mode", "a current-mode hold with a flux-linkage curve"
     elif d.hold.mode == "latch":
         key, why = "hold.mode", "a latching coil"
-    elif d.switch.topology == "full_bridge":
-        key, why = "switch.topology", "a full bridge"
-    elif d.coil.eddy_resistance:
-        key, why = "coil.eddy_resistance", "an eddy-current term"
+    elif d.coil.eddy_resistance and (d.coil.flux_current or d.armature is not None or d.hold.mode == "current"):
+        key, why = "coil.eddy_resistance", ("an eddy-current term with a flux-linkage curve, an [armature] "
+                                            "or a current-mode hold")
     elif d.supply.boosted:
         key, why = "supply.boost", "a boosted peak"
     if why is not None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
-                         "in a system yet; expected a linear coil, no [armature], one switch and a "
+                         "in a system yet; expected a linear coil (with an [armature] or an eddy term, not both) "
+                         "or a flux-linkage curve (no [armature], no eddy term), one switch or a full bridge and a "
                          "voltage-mode fixed, supply-table or closed-loop hold, or a current-mode hold")
 
 
@@ -617,7 +746,7 @@ def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:
     return rails
 
 
-def _droop(system: System, channels, designs, rails, offsets) -> dict:
+def _droop(system: System, channels, designs, rails, offsets, params) -> dict:
     """The shared rail's lowest bus, the peaks together and staggered, at the lowest supply
     with each coil at the corner of the most current (cold, lowest resistance, inductance
     and freewheel drop): every peak and every hold's PWM on the shared timer, the duty the
@@ -630,6 +759,10 @@ def _droop(system: System, channels, designs, rails, offsets) -> dict:
         return {}
     out = {}
     for name, ks in rails.items():
+        if any(designs[k].drive.coil.flux_current or designs[k].drive.coil.eddy_resistance
+               or designs[k].drive.switch.topology == "full_bridge" for k in ks):
+            out[name] = _droop_bound(system, channels, designs, ks, offsets, params)
+            continue
         r_on, r_off, v_off, l, tp, duty = [], [], [], [], [], []
         clamp = regulated = False
         for k in ks:
@@ -645,7 +778,9 @@ def _droop(system: System, channels, designs, rails, offsets) -> dict:
             r_on.append(float(np.min(lp.r_on)))
             r_off.append(float(np.min(lp.r_off)))
             v_off.append(float(np.min(lp.v_off)))
-            l.append(float(np.min(lp.inductance)))
+            # a moving armature's current is bounded by the open coil's (model/armature_bound.py)
+            l.append(float(np.min(lp.inductance if drv.armature is None
+                                  else circuit.open_inductance(drv, tol.l_factor))))
             tp.append(d.pull_in.peak_ticks / drv.board.tick.rate)
             low = envelope.supply_codes(drv, v)[0] if drv.board.supply_sense is not None else 0
             duty.append(float(_tables(d)[2](np.asarray(low))))
@@ -676,6 +811,24 @@ def _droop(system: System, channels, designs, rails, offsets) -> dict:
                      "hold_droop_v": s.source_resistance * sum(
                          designs[k].hold.max_mean_current_a * designs[k].hold.duty for k in ks)}
     return out
+
+
+def _droop_bound(system: System, channels, designs, ks, offsets, params) -> dict:
+    """:func:`_droop`'s figures for a rail with a saturating coil, an eddy term or a full
+    bridge on it, from the channels' rail-current bounds (:func:`bus_from_bound`) at the lowest supply: a bound from below,
+    peaks and holds included (the shared rail's exact solution is for linear coils)."""
+    s = system.supply
+    v = channels[ks[0]].drive.supply.min
+    rows = {view: bus_from_bound(v, s.source_resistance, s.capacitance, [params[k] for k in ks], on)
+            for view, on in (("together", [0.0] * len(ks)), ("staggered", [offsets[k] for k in ks]))}
+    return {"supply_v": v, "source_resistance_ohm": s.source_resistance, "capacitance_f": s.capacitance,
+            "lowest_bus_together_v": rows["together"][0], "lowest_bus_together_time_s": rows["together"][1],
+            "lowest_bus_staggered_v": rows["staggered"][0], "lowest_bus_staggered_time_s": rows["staggered"][1],
+            "droop_method": ("a bound from the channels' rail-current bounds at the lowest supply, peaks "
+                             "and holds (a saturating coil, an eddy term or a full bridge is on the rail; a "
+                             "bridge's fast decay returning energy only lifts the bus)"),
+            "hold_droop_v": s.source_resistance * sum(
+                designs[k].hold.max_mean_current_a * designs[k].hold.duty for k in ks)}
 
 
 def _heat(board_ch, channels, designs) -> dict:

@@ -61,5 +61,6 @@ def print_system(r: SystemResult) -> None:
               escape("every channel's freewheel path and switch (cycle average with [duty])"))
     con.print(s)
     for c in r.checks:
-        con.print(escape(f"{'ok  ' if c.ok else 'FAIL'} {c.name}: {c.detail}"))
+        mark = "ok  " if c.ok else ("warn" if c.severity == "warning" else "FAIL")
+        con.print(escape(f"{mark} {c.name}: {c.detail}"))
     print_verdict(con, r.ok, "every channel and every shared check passes", "FAILED", r.failed)

@@ -70,6 +70,15 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
                              f"channel {c.name!r}: simulate SYSTEM.toml runs every hold on the shared "
                              "timer, and a current-mode hold switches on its own thresholds; simulate "
                              "its drive file alone (coildrive simulate DRIVE.toml)")
+        for key, what, there in (("armature", "a moving armature", c.design.drive.armature is not None),
+                                 ("coil.flux_current", "a flux-linkage curve", bool(c.design.drive.coil.flux_current)),
+                                 ("coil.eddy_resistance", "an eddy-current term",
+                                  bool(c.design.drive.coil.eddy_resistance))):
+            if there:
+                raise InputError(c.design.drive.source, key,
+                                 f"channel {c.name!r}: simulate SYSTEM.toml runs linear coils on the shared "
+                                 f"timer, and {what} is not simulated in a system yet; simulate its drive "
+                                 "file alone (coildrive simulate DRIVE.toml)")
     runs, periods, duties = [], [], []
     for c in result.channels:
         d = c.design

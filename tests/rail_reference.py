@@ -1,0 +1,104 @@
+"""The rail's current bound written afresh from docs/design-method.md ("Several channels")
+for the system tests: a branch's tail after its peak, and the dense sweep of the
+staggered total at every supply where the readable branches change."""
+
+from __future__ import annotations
+
+import numpy as np
+
+
+def linear_tail(t, b):
+    """A branch's tail (A) ``t`` s after switch-on: the hold's top plus each part's excess
+    decaying from the end of the first PWM period at its slowest rate."""
+    age = np.maximum(np.asarray(t, float) - b["peak_s"] - b["pwm_period_s"], 0)
+    return b["hold_top_a"] + np.max([e * np.exp(-age * b["slow_resistance_ohm"] / l)
+                                     for e, l in zip(b["excess_a"], b["tail_inductance_h"])], axis=0)
+
+
+def rail_worst(chans, branch, points: int = 100_000) -> float:
+    """The highest rail total (A) over ``points`` instants up to 20 ms past the last peak:
+    at each supply where the readable branches change (each range's ends and the midpoints
+    between them), the sum over the channels (``design --json``'s, started at their
+    ``offset_s``) of their largest readable ``branch(t, b)``."""
+    t = np.linspace(0, max(c["offset_s"] + c["bound"]["peak_s"] for c in chans) + 0.02, points)
+    rows = [np.array([branch(t - c["offset_s"], b) for b in c["bound"]["branches"]]) for c in chans]
+    edges = sorted({x for c in chans for b in c["bound"]["branches"] for x in (b["supply_low_v"], b["supply_v"])})
+    worst = 0.0
+    for v in edges + [0.5 * (a + b) for a, b in zip(edges[:-1], edges[1:])]:
+        total = sum(r[[b["supply_low_v"] <= v <= b["supply_v"] for b in c["bound"]["branches"]]].max(axis=0)
+                    for r, c in zip(rows, chans))
+        worst = max(worst, float(np.max(total)))
+    return worst
+
+
+def manifold_copy(folder, old: str = "", new: str = "", extra: str = ""):
+    """The manifold example copied into ``folder`` with its purge valve's drive file changed
+    (``old`` replaced by ``new``, ``extra`` appended); returns the system file's path."""
+    import shutil
+
+    from conftest import EXAMPLES
+
+    for f in (EXAMPLES / "manifold").glob("*.toml"):
+        shutil.copy(f, folder / f.name)
+    purge = folder / "purge-valve-24v.toml"
+    text = purge.read_text()
+    purge.write_text((text.replace(old, new) if old else text) + extra)
+    return folder / "manifold-system.toml"
+
+
+def peaks_droop_ngspice(tmp_path, system, board, name: str) -> float:
+    """ngspice's lowest bus (V) with every channel of ``system`` (``design --json``)
+    switched on together behind its rail's ``R_s`` and ``C`` at the lowest supply, up to
+    the first peak's end: each coil cold (ambient.min), R and L at their low tolerance
+    ends, its switch loop (two switches on a full bridge) and sense resistor in series,
+    its inductance shunted by ``coil.eddy_resistance`` when it has one."""
+    from ngspice_run import OPTIONS, run
+
+    from coildrive.config import load_drive
+
+    rail = system["rails"][0]
+    v_s = rail["supply_v"]
+    lines = [f"* {name}: the channels on one bus", f"VS src 0 DC {v_s!r}",
+             f"RS src bus {rail['source_resistance_ohm']!r}", f"C1 bus 0 {rail['capacitance_f']!r} IC={v_s!r}"]
+    ends = []
+    for k, ch in enumerate(system["channels"]):
+        drv = load_drive(ch["drive_file"], board)
+        c = drv.coil
+        switches = 2 if drv.switch.topology == "full_bridge" else 1
+        r = c.resistance * (1 + 0.00393 * (drv.ambient.min - c.reference_temp)) * (1 - c.resistance_tolerance) \
+            + switches * drv.switch.on_resistance + drv.board.sense.resistance     # copper: IEC 60028
+        lines += [f"R{k} bus a{k} {r!r}", f"L{k} a{k} 0 {c.inductance * (1 - c.inductance_tolerance)!r} IC=0"]
+        if c.eddy_resistance:
+            lines.append(f"RE{k} a{k} 0 {c.eddy_resistance!r}")
+        ends.append(ch["design"]["pull_in"]["peak_ticks"] / drv.board.tick.rate)
+    t_end = min(ends)
+    step = t_end / 20000
+    lines += [OPTIONS, f".tran {step!r} {t_end!r} 0 {step!r} UIC", ".meas tran vlow MIN v(bus)", ".end", ""]
+    return run(tmp_path, name, "\n".join(lines))["vlow"]
+
+
+def assert_staggered_within_limit(system, branch) -> float:
+    """The dense sweep (:func:`rail_worst`) of ``system``'s rail with ``branch``: never
+    above the limit, never above the design's own bound, with a stagger; the worst (A)."""
+    worst = rail_worst(system["channels"], branch)
+    assert worst <= system["current_limit_a"], worst
+    assert system["rails"][0]["peak_current_staggered_a"] >= worst - 1e-12
+    assert system["stagger_ticks"] > 0
+    return worst
+
+
+def firmware_lookup(d, drv, v: float) -> tuple[float, float]:
+    """``(peak s, duty)`` the firmware looks up in a channel's design JSON ``d`` at supply
+    ``v`` V (the nominal reading, truncated to an ADC code)."""
+    b = drv.board
+    code = np.floor(v / b.supply_sense.divider / (b.adc.reference / 2**b.adc.bits))
+    pk = d.get("peak_table") or {"adc_codes": [0], "peak_ticks": [d["pull_in"]["peak_ticks"]]}
+    dt = d["duty_table"]
+    k = max(0, int(np.searchsorted(pk["adc_codes"], code, side="right")) - 1)
+    j = max(0, int(np.searchsorted(dt["adc_codes"], code, side="right")) - 1)
+    return pk["peak_ticks"][k] / b.tick.rate, dt["compare_ticks"][j] / d["timer"]["period_ticks"]
+
+
+def readable(ch, v: float) -> list[dict]:
+    """A channel's branches whose supply range holds ``v`` V."""
+    return [b for b in ch["bound"]["branches"] if b["supply_low_v"] <= v <= b["supply_v"]]
