@@ -13,6 +13,10 @@ Outside references, named beside each check (none calls coildrive's eddy model):
   hysteresis on the sense current (a voltage-controlled switch: ngspice manual,
   "Switches", the SW model's ``VT``/``VH``; ch. 3, from memory): ngspice finds the
   switching itself; frequency, mean and ripple within 1 %;
+* the design's own corners (mean, ripple, switching frequency at the slowest and fastest
+  corner) against that same ``solve_ivp``, from the element values of the drive and board;
+* scipy's ``solve_ivp`` of the switched circuit under a duty step: the sampled plant's
+  DC gain and time constant, and the mean's transfer function at DC;
 * scipy.signal: the closed loop's margins from the sampled plant written afresh from the
   circuit's element values (``cont2discrete`` ZOH, a one-period delay, the PI as a
   ``dlti``, ``dfreqresp``), and the terminal current's mean transfer function (its zero
@@ -317,6 +321,22 @@ def test_current_mode_design_and_simulate(tmp_path, control):
     assert checks["current_mode_step"]["ok"] and checks["current_mode_regulated"]["ok"]
     assert d["eddy"]["resistance_ohm"] == 1000.0 and d["hold"]["regulation"] == "current"
     cm = d["current_mode"]
+    # the design's hold at its slowest- and fastest-switching corners against solve_ivp of
+    # the circuit written afresh (_ivp), from the element values of the drive and board
+    drive = load_drive(path)
+    fw, r_e = drive.freewheel, drive.coil.eddy_resistance
+    assert fw.type == "zener" and drive.board.sense.position == "coil"
+    for label in (cm["min_frequency_corner"], cm["max_frequency_corner"]):
+        c = next(x for x in d["corners"] if x["label"] == label)
+        r_on = c["resistance_ohm"] + drive.switch.on_resistance + drive.board.sense.resistance
+        r_off = c["resistance_ohm"] + drive.board.sense.resistance
+        (f, mean, low, high, _), _ = _ivp(c["supply_v"], r_on, r_off, fw.diode_drop + fw.zener_voltage,
+                                          c["inductance_h"], r_e, lo=cm["lower_a"], hi=cm["upper_a"],
+                                          t_off=cm["off_time_s"], delay=cm["sense_delay_s"])
+        assert c["hold_mean_current_a"] == pytest.approx(mean, rel=1e-5), label
+        assert c["hold_ripple_a"] == pytest.approx(high - low, rel=1e-5), label
+        f_design = cm["min_frequency_hz" if label == cm["min_frequency_corner"] else "max_frequency_hz"]
+        assert f_design == pytest.approx(f, rel=1e-5), label
     csv = tmp_path / "a.csv"
     r = run_cli("simulate", str(path), "--supply", "24", "--coil-temp", "40", "--hold-time", "2 ms",
                 "--csv", str(csv))
