@@ -44,6 +44,9 @@ V, R_ON, R_OFF, V_OFF, L, R_E = 24.0, 30.0, 29.0, 34.0, 0.06, 600.0
 
 
 def _ivp(v, r_on, r_off, v_off, ell, r_e, *, lo=None, hi=None, t_off=None, delay=0.0, cycles=8):
+    """``ell``: H, or a function of the magnetising current giving the incremental
+    inductance (a flux-linkage curve)."""
+    ld = ell if callable(ell) else (lambda _: ell)
     """The controller from zero flux, solve_ivp of the circuit in ``i_m``; states ``i_m``,
     ``int i dt``, ``int i^2 dt``, eddy energy. Returns the last cycle's (frequency, mean,
     sensed min, sensed max, eddy energy per period) and the one before it."""
@@ -56,7 +59,7 @@ def _ivp(v, r_on, r_off, v_off, ell, r_e, *, lo=None, hi=None, t_off=None, delay
         def f(_, y):
             i = sensed(y[0], on)
             vm = r_e * (i - y[0])                # KCL at the branch node
-            return [vm / ell, i, i * i, vm * vm / r_e]
+            return [vm / ld(max(y[0], 0.0)), i, i * i, vm * vm / r_e]
         return f
 
     opts = dict(method="DOP853", rtol=1e-11, atol=1e-14)
@@ -121,6 +124,29 @@ def test_current_mode_with_eddy_against_solve_ivp(control, lo, hi, t_off, delay)
     if control == "hysteretic" and not delay:
         plain = hysteretic_steady_state(lo, hi, V, R_ON, R_OFF, V_OFF, L)
         assert float(ss.frequency) > 1.5 * float(plain.frequency)
+
+
+def test_current_mode_with_eddy_and_a_curve_against_solve_ivp():
+    # a saturating coil (the example's table through scipy's PchipInterpolator,
+    # tests/test_flux_cycle.py's Curve) with the eddy resistance: a band across the knee
+    from coildrive.model.flux import FluxCoil, curve as flux_curve
+    from test_flux_cycle import Curve
+
+    spec = load_drive(EXAMPLES / "saturating-valve-24v.toml").coil
+    e = EddyCoil(FluxCoil(flux_curve(spec.flux_current, spec.flux_linkage), np.array(1.1)), np.array(R_E))
+    for lo, hi, t_off in ((0.45, 0.70, None), (None, 0.65, 150e-6)):
+        if t_off is None:
+            ss = hysteretic_steady_state(lo, hi, V, R_ON, R_OFF, V_OFF, e)
+        else:
+            ss = off_time_steady_state(hi, t_off, V, R_ON, R_OFF, V_OFF, e)
+        (f, mean, low, high, w), before = _ivp(V, R_ON, R_OFF, V_OFF, Curve(spec, 1.1).ld, R_E, lo=lo,
+                                               hi=hi, t_off=t_off)
+        assert f == pytest.approx(before[0], rel=1e-7), "precondition: the ivp reached its orbit"
+        # scipy solve_ivp with events; the curve's quadrature agrees within 1e-6
+        assert float(ss.frequency) == pytest.approx(f, rel=1e-6), "switching frequency (solve_ivp)"
+        assert float(ss.mean) == pytest.approx(mean, rel=1e-6), "mean terminal current (solve_ivp)"
+        assert float(ss.terminal_min) == pytest.approx(low, rel=1e-6), "sensed bottom (solve_ivp)"
+        assert float(ss.eddy_energy) == pytest.approx(w, rel=1e-5), "eddy energy (solve_ivp)"
 
 
 def test_band_narrower_than_the_step_chatters():

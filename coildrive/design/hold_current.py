@@ -201,7 +201,9 @@ def _size_band(drive: Drive, grid: CornerGrid, lsb: float, c0: int, full: int) -
 
     n = max(2, min(full - c0, 4096))
     b = np.arange(1, n + 1)
-    if isinstance(lp.inductance, FluxCoil) and n > 64:
+    ind = lp.inductance
+    curve = isinstance(ind.magnetising if isinstance(ind, EddyCoil) else ind, FluxCoil)
+    if curve and n > 64:
         # a saturating coil's segments are quadratures, not logarithms: every band at
         # every point would take seconds. The frequency falls as the band widens at every
         # point, so the bands that fit form one run and the nominal's distance to

@@ -245,10 +245,14 @@ def _eddy_hysteretic(i_lo, i_hi, v_on, r_on, r_off, v_off, e: EddyCoil, delay):
     regulated = reachable & ~chatter
     hi = np.where(regulated, m_hi, 0.5 * v_on / r_on)   # placeholders where not regulated
     lo = np.where(regulated, m_lo, 0.25 * v_on / r_on)
-    top = eddy.rise_current(delay, hi, v_on, r_on, e)                 # run-on past I_hi
+    late = np.any(delay > 0)
+    top = eddy.rise_current(delay, hi, v_on, r_on, e) if late else hi  # run-on past I_hi
     down = eddy.decay_time(lo, top, r_off, v_off, e)                  # sensed: top -> I_lo
-    bottom = eddy.decay_current(delay, lo, r_off, v_off, e)           # run-on past I_lo
-    conduction = down + np.minimum(delay, eddy.conduction_time(lo, r_off, v_off, e))
+    if late:   # the run-on past I_lo (the freewheel may block in it: the flux then via R_e)
+        bottom = eddy.decay_current(delay, lo, r_off, v_off, e)
+        conduction = down + np.minimum(delay, eddy.conduction_time(lo, r_off, v_off, e))
+    else:      # I_lo >= 0: the freewheel conducts down to it
+        bottom, conduction = lo, down
     t_off = down + delay
     t_on = eddy.rise_time(hi, bottom, v_on, r_on, e) + delay
     return _eddy_finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, e,
@@ -283,8 +287,8 @@ def _eddy_finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off,
                                                         regulated)
     period = t_on + t_off
     r_e = e.resistance
-    q_on, s_on, w_on = eddy.rise_integrals(t_on, bottom, v_on, r_on, e)
-    q_off, s_off, w_off = eddy.decay_integrals(t_off, top, r_off, v_off, e)
+    q_on, s_on, w_on, q_off, s_off, w_off = _eddy_integrals(bottom, top, t_on, t_off, conduction,
+                                                            v_on, r_on, r_off, v_off, e)
     # unregulated: the coil carries V/R_on, no branch voltage and so no eddy current
     q_on, s_on = np.where(regulated, q_on, a * t_on), np.where(regulated, s_on, a * a * t_on)
     q_off, s_off = np.where(regulated, q_off, 0.0), np.where(regulated, s_off, 0.0)
@@ -300,3 +304,28 @@ def _eddy_finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off,
         regulated=regulated, dcm=dcm, conduction_off=conduction, charge_on=q_on, square_on=s_on,
         charge_off=q_off, square_off=s_off, terminal_min=t_min, terminal_max=t_max, eddy_energy=w,
         chatter=chatter)
+
+
+def _eddy_integrals(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, e: EddyCoil):
+    """Terminal ``(q_on, s_on, w_on, q_off, s_off, w_off)`` (A*s, A^2*s, J of the eddy
+    resistance) of an orbit whose magnetising current's ends are known: on from
+    ``bottom`` to ``top``; off, the freewheel conducting for ``conduction`` s from ``top``
+    down to ``bottom`` or to ``V_off / R_e`` where it blocks, then the flux through
+    ``R_e`` alone down to ``bottom``. From the end currents, a curve's segments need no
+    current-after-time search (:func:`coildrive.model.eddy.branch_integrals`)."""
+    r_e, mag = e.resistance, e.magnetising
+    ib = eddy.block_current(v_off, r_e)
+    vt_on, rt_on = eddy.thevenin(v_on, r_on, r_e)
+    vt_off, rt_off = eddy.thevenin(-v_off, r_off, r_e)
+    stop = np.where(top > ib, np.maximum(bottom, ib), top)   # where the conduction ends
+    with np.errstate(invalid="ignore"):
+        qm, sm = eddy.branch_integrals(mag, t_on, bottom, top, vt_on, rt_on)
+        qm_off, sm_off = eddy.branch_integrals(mag, conduction, top, stop, vt_off, rt_off)
+        tail = bottom < stop
+        _, s_tail = eddy.branch_integrals(mag, np.where(tail, t_off - conduction, 0.0),
+                                          np.where(tail, stop, 1.0), np.where(tail, bottom, 1.0),
+                                          0.0, r_e)
+    q_on, s_on, w_on = eddy._terminal_integrals(t_on, qm, sm, v_on, r_on, r_e)
+    q_off, s_off, w_off = eddy._terminal_integrals(conduction, qm_off, sm_off, -v_off, r_off, r_e)
+    w_off = w_off + np.where(tail, r_e * s_tail, 0.0)
+    return q_on, s_on, w_on, q_off, s_off, w_off
