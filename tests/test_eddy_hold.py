@@ -473,3 +473,29 @@ def test_compiled_closed_loop_driver_holds_the_set_point(tmp_path, closed_loop):
         print(f"{c.label}: mean {mean:.6g} A, design {c.hold_mean_current_a:.6g} A, set-point {r.setpoint_a:.6g} A")
         assert mean == pytest.approx(c.hold_mean_current_a, rel=0.01), c.label
         assert mean > r.setpoint_a
+
+
+def test_band_search_without_a_fitting_band_matches_every_band(tmp_path):
+    # a saturating coil with an eddy term whose corners spread wider than the allowed
+    # switching range (no band fits): the gaps the search skips (design/hold_current.py
+    # _gaps) hide no better band -- the same band as trying every band
+    import math
+
+    from coildrive.design import hold_current as hc
+    from coildrive.design.corners import corner_grid
+    from coildrive.design.figures import slow_hold_drive
+
+    path = _drive_file(tmp_path, "saturating-valve-24v", 300, 'mode = "current"', drop=("compensate",))
+    path.write_text(path.read_text().replace("fast-32bit-clamp", "lab-m32-zener"))
+    drive = slow_hold_drive(load_drive(path))[0]
+    grid = corner_grid(drive)
+    lsb, full = hc.lsb_current(drive), 2**drive.board.adc.bits - 1
+    c0 = math.ceil(drive.hold.current / lsb - 1e-9)
+    lp = hc._sizing_loops(drive, grid)
+    b = np.arange(1, min(full - c0, 4096) + 1)
+    lo = np.maximum(c0 - b // 2, 1)[:, None]
+    ss = hysteretic_steady_state(lo * lsb, (lo + b[:, None]) * lsb, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
+                                 lp.inductance, drive.hold.sense_delay)
+    assert not np.any(hc._fits(drive, ss.frequency, ss.regulated)), "precondition: no band fits"
+    assert np.any(ss.chatter), "precondition: the narrow bands chatter"
+    assert hc._size_band(drive, grid, lsb, c0, full) == int(b[hc._pick(drive, ss.frequency, ss.regulated)])

@@ -196,8 +196,8 @@ def _size_band(drive: Drive, grid: CornerGrid, lsb: float, c0: int, full: int) -
         lo = np.maximum(c0 - b // 2, 1)[:, None]
         ss = hysteretic_steady_state(lo * lsb, (lo + b[:, None]) * lsb, lp.v_on, lp.r_on, lp.r_off,
                                      lp.v_off, lp.inductance, drive.hold.sense_delay)
-        return _pick(drive, ss.frequency, ss.regulated), bool(np.any(_fits(drive, ss.frequency,
-                                                                           ss.regulated)))
+        return (_pick(drive, ss.frequency, ss.regulated),
+                bool(np.any(_fits(drive, ss.frequency, ss.regulated))), ss)
 
     n = max(2, min(full - c0, 4096))
     b = np.arange(1, n + 1)
@@ -209,12 +209,47 @@ def _size_band(drive: Drive, grid: CornerGrid, lsb: float, c0: int, full: int) -
         # point, so the bands that fit form one run and the nominal's distance to
         # hold.frequency has one minimum there: pick among 48 log-spaced bands, then among
         # every band between the pick's neighbours (the band the full search finds). Where
-        # none of the 48 fits, the run (if any) may lie between two of them: all bands.
+        # none of the 48 fits, the run (if any) may lie between two of them: every band of
+        # the gaps that :func:`_gaps` cannot rule out.
         coarse = np.unique(np.round(np.geomspace(1, n, 48)).astype(int))
-        k, fits = pick(coarse)
+        k, fits, ss = pick(coarse)
         if fits:
             b = np.arange(coarse[max(k - 1, 0)], coarse[min(k + 1, coarse.size - 1)] + 1)
+        else:
+            b = _gaps(drive, coarse, ss.frequency, ss.regulated,
+                      np.zeros_like(ss.regulated) if ss.chatter is None else ss.chatter)
     return int(b[pick(b)[0]])
+
+
+def _gaps(drive: Drive, coarse: np.ndarray, freq: np.ndarray, regulated: np.ndarray,
+          chatter: np.ndarray) -> np.ndarray:
+    """The bands :func:`_pick` may choose when none of the ``coarse`` bands (rows of
+    ``freq`` / ``regulated`` / ``chatter``: [nominal, corners...]) fits. As the band widens
+    the frequency falls at every regulated point, a point that chatters (a band no wider
+    than an eddy term's step) stops chattering and one out of reach stays so. So a gap
+    between two coarse bands holds no fitting band where a point still chatters at its
+    wider end or is already out of reach at its narrower one, or where both ends are
+    regulated everywhere and its wider end is still too fast somewhere or its narrower end
+    already too slow somewhere; and :func:`_pick`'s fallback, the nominal frequency nearest
+    ``hold.frequency``, lies in the gap where the nominal frequency crosses it or where
+    the bands stop (or start) being regulated everywhere. Every other gap is skipped."""
+    f_lo, f_hi, _ = allowed_range(drive)
+    every = regulated.all(axis=1)
+    fmax, fmin, nom = freq[:, 1:].max(axis=1), freq[:, 1:].min(axis=1), freq[:, 0]
+    side = np.sign(nom - drive.hold.frequency)
+    out_of_reach = ~regulated & ~chatter
+    keep = [coarse]
+    for j in range(coarse.size - 1):
+        a, b = j, j + 1
+        ruled_out = (np.any(chatter[b]) or np.any(out_of_reach[a])
+                     or every[a] and every[b] and (fmax[b] > f_hi or fmin[a] < f_lo))
+        # the fallback's candidates: regulated everywhere if any coarse band is (a point
+        # regulated at neither end of a gap is not regulated inside it), else any
+        turns = side[a] != side[b] or every[a] != every[b] or (
+            not np.any(every) and np.any(regulated[a] != regulated[b]))
+        if not ruled_out or turns:
+            keep.append(np.arange(coarse[a] + 1, coarse[b]))
+    return np.unique(np.concatenate(keep))
 
 
 def _size_off_time(drive: Drive, grid: CornerGrid, peak_a: float) -> float:
