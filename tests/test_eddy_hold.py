@@ -245,6 +245,8 @@ def test_closed_loop_plant_and_margins_against_scipy_signal():
         y = (-math.pi - ph[j - 1]) / (ph[j] - ph[j - 1])
         gm = -20 * math.log10(mag[j - 1] + y * (mag[j] - mag[j - 1]))
         m = loop_gains.margins(kp, ki, p)
+        print(f"margins vs scipy.signal (d {duty}, switch leg {leg}): {float(m.crossover_hz[0]):.6g}/{fc:.6g} Hz, "
+              f"{float(m.phase_margin_deg[0]):.4f}/{pm:.4f} deg, {float(m.gain_margin_db[0]):.4f}/{gm:.4f} dB")
         # scipy.signal cont2discrete + dfreqresp on the plant written afresh
         assert float(m.crossover_hz[0]) == pytest.approx(fc, rel=1e-3)
         assert float(m.phase_margin_deg[0]) == pytest.approx(pm, abs=0.05)
