@@ -1228,15 +1228,13 @@ def _eddy_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel, swit
     if not coil.eddy_resistance:
         return
     what = "an eddy-current term (coil.eddy_resistance / eddy_time_constant)"
-    if hold.regulation == "closed_loop":
-        raise InputError(source, "hold.regulation", f"\"closed_loop\" with {what} is not "
-                         "supported yet: use \"fixed\" or \"supply_table\"")
-    if hold.mode == "current":
-        raise InputError(source, "hold.mode", f"\"current\" with {what} is not supported yet: "
-                         "use mode = \"voltage\"")
     if switch.topology == "full_bridge" and hold.fast_fraction > 0:
         raise InputError(source, "hold.fast_fraction", f"mixed decay with {what} on a full bridge is "
                          "not supported yet: leave it out (slow decay in the hold)")
+    if freewheel.split_decay and hold.mode == "current":
+        raise InputError(source, "freewheel.split_decay", f"split decay with a current-mode hold "
+                         f"and {what} is not supported yet: use mode = \"voltage\" or leave "
+                         "split_decay out")
     if freewheel.split_decay and freewheel.bypass_lead < 0:
         raise InputError(source, "freewheel.bypass_lead", f"a bypass that opens after the final "
                          f"turn-off with {what} is not supported yet: open it at or before the "

@@ -64,21 +64,6 @@ def test_file_errors_name_the_key(tmp_path, extra, key, words):
     assert "\n" not in line and key in line and words in line, line
 
 
-@pytest.mark.parametrize("example, key", [("dosing-valve-closed-loop", "hold.regulation")])
-def test_unmodelled_combinations_are_refused_in_one_line(tmp_path, example, key):
-    path = _example_drive(tmp_path, 'eddy_resistance = "300 ohm"', EXAMPLES / f"{example}.toml")
-    r = run_cli("design", str(path))
-    line = r.stderr.strip()
-    assert r.returncode == 2 and "\n" not in line and key in line and "not supported" in line, line
-
-
-def test_current_mode_is_refused_in_one_line(tmp_path):
-    path = _example_drive(tmp_path, 'eddy_resistance = "300 ohm"', EXAMPLES / "reagent-valve-zener-24v.toml")
-    path.write_text(path.read_text().replace('frequency = "25 kHz"', 'frequency = "25 kHz"\nmode = "current"'))
-    r = run_cli("design", str(path))
-    assert r.returncode == 2 and "hold.mode" in r.stderr and "eddy" in r.stderr, r.stderr
-
-
 # --------------------------------------------------------------- the physics vs scipy
 def _reference(drive, lp, t_on: float, t_end: float):
     """scipy's solve_ivp (Radau) on the circuit in the flux linkage, written afresh:

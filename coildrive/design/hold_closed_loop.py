@@ -48,6 +48,7 @@ from .hold_current import drooping_bus
 from .hold_voltage import MAX_PEAK_ROUNDS, _losses, _split_result, closing_checks, plot_points
 from .peak import plan_peak, shortest_peak_current
 from .diagnostics import rise_check, seat_check
+from .eddy import eddy_result
 from .thermal_cycle import (HeatPoints, cycle_caution, cycle_result, cycling, thermal_cautions,
                             thermal_checks)
 from .topology import topology_cautions, topology_result
@@ -219,7 +220,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                   checks=checks, cautions=notes, monte_carlo=None, input_hash=drive.input_hash(),
                   worst_corner_index=pk.k_pull, armature=arm, split_decay=split,
                   actuation_points=points, peak_table=None, topology=topo, thermal_cycle=thermal, supply=sup,
-                  rise_check=rise_check(drive, env, res, f), seat_check=seat_check(drive, env, res_low))
+                  rise_check=rise_check(drive, env, res, f), seat_check=seat_check(drive, env, res_low),
+                  eddy=eddy_result(drive, env, res))
 
 
 def _loop(drive, env, lp, res_low, duty, f, period, setpoint, lsb, min_compare, max_compare,
@@ -227,8 +229,8 @@ def _loop(drive, env, lp, res_low, duty, f, period, setpoint, lsb, min_compare, 
     """Gains, fixed point, margins and settling over the corners (the weakest hold's
     operating points: the loop's small-signal plant there)."""
     cpa = 1.0 / lsb
-    p = loop_gains.plant(lp, duty, res_low.hold.mean, f, period, cpa)
-    speed = p.vg / p.inductance
+    p = loop_gains.plant(lp, duty, res_low.hold.mean, f, period, cpa, switch_leg)
+    speed = p.sensed * p.vg / p.inductance
     k_fast = int(np.argmax(speed))
     bandwidth = loop_gains.BANDWIDTH_FRACTION * f
     kp, ki = loop_gains.design_gains(p, k_fast, bandwidth)
@@ -251,6 +253,7 @@ def _loop(drive, env, lp, res_low, duty, f, period, setpoint, lsb, min_compare, 
                     ("slowest settling", k_set)):
         plants.append({"role": role, "corner": env.label(k), "vg_v": float(p.vg[k]),
                        "r_eff_ohm": float(p.r_eff[k]), "inductance_h": float(p.inductance[k]),
+                       "sensed_fraction": float(p.sensed[k]),
                        "crossover_hz": float(m.crossover_hz[k]),
                        "phase_margin_deg": float(m.phase_margin_deg[k]),
                        "gain_margin_db": float(m.gain_margin_db[k]),
@@ -308,6 +311,17 @@ def loop_checks(drive: Drive, r: ClosedLoopResult, adc, period: int) -> list[Che
                      "intermediate fits 32 bits" + ("" if q_ok else
                                                     " — a gain rounds by more than 1 %: the ADC or "
                                                     "the timer is too coarse for this loop")))
+    if drive.coil.eddy_resistance and r.sample_point == "middle of the period":
+        # the sensed current steps at each edge: a duty of 1/2 puts the edge on the sample
+        edge = r.min_duty <= 0.5 <= r.max_duty
+        out.append(Check("loop_sample_edge", not edge,
+                         f"settled duties {r.min_duty:.4f}..{r.max_duty:.4f} vs 1/2, where the "
+                         "switching edge (and the eddy term's step of the sensed current) meets "
+                         "the mid-period sample" + (" — at some corner the reading jumps by the "
+                                                    "step as the duty crosses 1/2: move the duties "
+                                                    "off 1/2 (hold.current, supply) or sense under "
+                                                    "the switch" if edge else ""),
+                         severity="warning"))
     full = 2**drive.board.adc.bits - 1
     sp_ok = r.setpoint_code < min(adc.over_current_code, full) and r.setpoint_code >= adc.open_load_code
     out.append(Check("loop_setpoint", sp_ok,

@@ -45,8 +45,10 @@ from ..errors import InputError
 from ..model.circuit import loop, split_decay
 from ..model.current_mode import (CurrentModeSteadyState, hysteretic_steady_state,
                                   off_time_steady_state)
+from ..model.eddy import EddyCoil
 from ..model.flux import FluxCoil
 from ..model.losses import HoldLosses, element_powers
+from ..model.pwm import coil_heat
 from ..model.rl import decay_current, decay_time, rise_current, rise_time
 from ..model.thermal import closed_form_temperature, settle_temperature
 from . import hold_voltage
@@ -56,6 +58,7 @@ from .evaluate import PointResults, release_figures, switch_voltage_peak
 from .figures import (adc_code, adc_thresholds, corners_of, hold_spread, loss_figures, pull_in_result,
                       release_result, saving_figures, slow_hold_drive)
 from .diagnostics import rise_check, seat_check
+from .eddy import eddy_result
 from .peak import plan_peak, shortest_peak_current
 from .supply import rise_current as bus_rise_current
 from .supply import rise_time as bus_rise_time
@@ -170,13 +173,18 @@ def _fits(drive: Drive, freq: np.ndarray, regulated: np.ndarray) -> np.ndarray:
 def _pick(drive: Drive, freq: np.ndarray, regulated: np.ndarray) -> int:
     """Row of ``freq`` (candidates x [nominal, corners...]) to use: among the candidates
     whose every corner is regulated and inside the allowed range, the one whose nominal
-    frequency is nearest ``hold.frequency`` (in ratio); if none fits, the nearest of all."""
+    frequency is nearest ``hold.frequency`` (in ratio); if none fits, the nearest of those
+    regulated everywhere (with an eddy term a band no wider than the switching step has no
+    orbit at some corner), else the nearest of all."""
     ok = _fits(drive, freq, regulated)
     with np.errstate(divide="ignore", invalid="ignore"):
         err = np.abs(np.log(freq[:, 0] / drive.hold.frequency))
     err = np.where(np.isfinite(err) & regulated[:, 0], err, np.inf)
+    everywhere = regulated.all(axis=1)
     if np.any(ok):
         err = np.where(ok, err, np.inf)
+    elif np.any(everywhere & np.isfinite(err)):
+        err = np.where(everywhere, err, np.inf)
     return int(np.argmin(err))
 
 
@@ -188,23 +196,60 @@ def _size_band(drive: Drive, grid: CornerGrid, lsb: float, c0: int, full: int) -
         lo = np.maximum(c0 - b // 2, 1)[:, None]
         ss = hysteretic_steady_state(lo * lsb, (lo + b[:, None]) * lsb, lp.v_on, lp.r_on, lp.r_off,
                                      lp.v_off, lp.inductance, drive.hold.sense_delay)
-        return _pick(drive, ss.frequency, ss.regulated), bool(np.any(_fits(drive, ss.frequency,
-                                                                           ss.regulated)))
+        return (_pick(drive, ss.frequency, ss.regulated),
+                bool(np.any(_fits(drive, ss.frequency, ss.regulated))), ss)
 
     n = max(2, min(full - c0, 4096))
     b = np.arange(1, n + 1)
-    if isinstance(lp.inductance, FluxCoil) and n > 64:
+    ind = lp.inductance
+    curve = isinstance(ind.magnetising if isinstance(ind, EddyCoil) else ind, FluxCoil)
+    if curve and n > 64:
         # a saturating coil's segments are quadratures, not logarithms: every band at
         # every point would take seconds. The frequency falls as the band widens at every
         # point, so the bands that fit form one run and the nominal's distance to
         # hold.frequency has one minimum there: pick among 48 log-spaced bands, then among
         # every band between the pick's neighbours (the band the full search finds). Where
-        # none of the 48 fits, the run (if any) may lie between two of them: all bands.
+        # none of the 48 fits, the run (if any) may lie between two of them: every band of
+        # the gaps that :func:`_gaps` cannot rule out.
         coarse = np.unique(np.round(np.geomspace(1, n, 48)).astype(int))
-        k, fits = pick(coarse)
+        k, fits, ss = pick(coarse)
         if fits:
             b = np.arange(coarse[max(k - 1, 0)], coarse[min(k + 1, coarse.size - 1)] + 1)
+        else:
+            b = _gaps(drive, coarse, ss.frequency, ss.regulated,
+                      np.zeros_like(ss.regulated) if ss.chatter is None else ss.chatter)
     return int(b[pick(b)[0]])
+
+
+def _gaps(drive: Drive, coarse: np.ndarray, freq: np.ndarray, regulated: np.ndarray,
+          chatter: np.ndarray) -> np.ndarray:
+    """The bands :func:`_pick` may choose when none of the ``coarse`` bands (rows of
+    ``freq`` / ``regulated`` / ``chatter``: [nominal, corners...]) fits. As the band widens
+    the frequency falls at every regulated point, a point that chatters (a band no wider
+    than an eddy term's step) stops chattering and one out of reach stays so. So a gap
+    between two coarse bands holds no fitting band where a point still chatters at its
+    wider end or is already out of reach at its narrower one, or where both ends are
+    regulated everywhere and its wider end is still too fast somewhere or its narrower end
+    already too slow somewhere; and :func:`_pick`'s fallback, the nominal frequency nearest
+    ``hold.frequency``, lies in the gap where the nominal frequency crosses it or where
+    the bands stop (or start) being regulated everywhere. Every other gap is skipped."""
+    f_lo, f_hi, _ = allowed_range(drive)
+    every = regulated.all(axis=1)
+    fmax, fmin, nom = freq[:, 1:].max(axis=1), freq[:, 1:].min(axis=1), freq[:, 0]
+    side = np.sign(nom - drive.hold.frequency)
+    out_of_reach = ~regulated & ~chatter
+    keep = [coarse]
+    for j in range(coarse.size - 1):
+        a, b = j, j + 1
+        ruled_out = (np.any(chatter[b]) or np.any(out_of_reach[a])
+                     or every[a] and every[b] and (fmax[b] > f_hi or fmin[a] < f_lo))
+        # the fallback's candidates: regulated everywhere if any coarse band is (a point
+        # regulated at neither end of a gap is not regulated inside it), else any
+        turns = side[a] != side[b] or every[a] != every[b] or (
+            not np.any(every) and np.any(regulated[a] != regulated[b]))
+        if not ruled_out or turns:
+            keep.append(np.arange(coarse[a] + 1, coarse[b]))
+    return np.unique(np.concatenate(keep))
 
 
 def _size_off_time(drive: Drive, grid: CornerGrid, peak_a: float) -> float:
@@ -272,7 +317,7 @@ def evaluate_current(drive: Drive, th: Thresholds, supply, ambient, r_factor, l_
     # regulation takes the bus's droop out of the hold)
     t_pull = bus_rise_time(drive, lp, drive.pull_in.current, lp.inductance)
     i_peak = bus_rise_current(drive, lp, peak_time, lp.inductance)
-    power = ss.rms**2 * lp.r_coil
+    power = coil_heat(ss, lp.r_coil)   # the copper's, and an eddy term's core loss
     i_off = ss.i_max
     if split_decay(drive):
         finite = np.where(np.isfinite(temp), temp, drive.thermal.max_coil_temp)
@@ -430,7 +475,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
         split_decay=split, corners=corners, nominal=nominal, checks=checks, cautions=notes,
         actuation_points=points, topology=topo, thermal_cycle=thermal, supply=sup, input_hash=drive.input_hash(), worst_corner_index=k_pull,
         rise_check=rise_check(drive, grid, res, fallback.timer.frequency_hz),
-        seat_check=seat_check(drive, grid, res))
+        seat_check=seat_check(drive, grid, res), eddy=eddy_result(drive, grid, res))
 
 
 def drooping_bus(drive: Drive, grid, res: PointResults, peak_time, duty, thresholds):
@@ -502,6 +547,8 @@ def _current_checks(drive: Drive, th: Thresholds, r: CurrentModeResult, adc, res
         add(Check("current_mode_sense", True,
                   f"off-time control reads the peak while the switch is on: works with the sense "
                   f"resistor in the {'coil path' if position == 'coil' else 'switch leg'}"))
+    if cm.chatter is not None:
+        out.append(_step_check(drive, th, cm, res, grid))
     a = res.loop.v_on / res.loop.r_on
     k = int(np.argmin(a))
     reg_ok = bool(np.all(cm.regulated))
@@ -552,6 +599,36 @@ def _current_checks(drive: Drive, th: Thresholds, r: CurrentModeResult, adc, res
     return out
 
 
+def _step_check(drive: Drive, th: Thresholds, cm: CurrentModeSteadyState, res: PointResults,
+                grid: CornerGrid) -> Check:
+    """With an eddy term: the sensed current steps at every switching edge (the flux's
+    current is continuous, the eddy resistance's share is not), by ``(V + V_off) / (R +
+    R_e)`` at a turn-off; a hysteretic band must be wider than that step (a peak
+    threshold above the switch-on step ``V / (R + R_e)``) or every edge trips the other
+    threshold at once and the switch chatters (docs/coil-model.md)."""
+    lp = res.loop
+    r_e = drive.coil.eddy_resistance
+    hyst = th.control == "hysteretic"
+    # the sensed current's fall at a turn-off at the upper threshold (its rise at a
+    # turn-on is the same within the loop resistances' difference)
+    step = np.asarray((lp.v_on + lp.v_off + (lp.r_off - lp.r_on) * th.upper_a) / (lp.r_off + r_e)
+                      if hyst else lp.v_on / (lp.r_on + r_e), float) + 0.0 * cm.mean
+    k = int(np.argmax(step))
+    bad = int(np.sum(cm.chatter))
+    ok = bad == 0
+    if hyst:
+        what = (f"band {th.upper_a - th.lower_a:.4g} A vs the sensed current's step at each edge "
+                f"{step[k]:.4g} A ({grid.label(k)}; eddy term: (V + V_off) / (R + R_e))")
+        fix = "widen hold.band, or use control = \"off_time\""
+    else:
+        what = (f"peak {th.upper_a:.4g} A vs the switch-on step {step[k]:.4g} A ({grid.label(k)}; "
+                "eddy term: V / (R + R_e))")
+        fix = "raise hold.current"
+    return Check("current_mode_step", ok, what + ("" if ok else f" — at {bad} of {len(cm.mean)} "
+                                                  "corners every edge trips the other threshold "
+                                                  f"at once and the switch chatters: {fix}"))
+
+
 # --------------------------------------------------------------------------- waveform
 def actuation(design: Design, supply: float, coil_temp: float, hold_time: float,
               r_factor: float = 1.0, l_factor: float = 1.0, points: int = 8, label: str = "",
@@ -577,6 +654,13 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
                                   split_waveform)
 
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
+    if isinstance(lp.inductance, EddyCoil):   # the sensed current steps at each edge
+        from ..model.eddy_waveform import threshold_actuation
+        from ..model.waveform import eddy_waveform
+
+        pieces = threshold_actuation(drive, lp, peak_time, hold_time, points, th.control,
+                                     th.lower_a, th.upper_a, th.off_time_s, th.delay_s)
+        return eddy_waveform(drive, lp, supply, pieces, peak_time, label)
     v, r_on, r_off, v_off = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off))
     ind = one_point(lp.inductance)   # H, or a saturating coil's curve (exact segments)
     a = v / r_on  # the current the on-time rises toward, A

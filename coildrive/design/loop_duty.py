@@ -10,7 +10,9 @@ from __future__ import annotations
 import numpy as np
 
 from ..config import Drive
+from ..model import eddy
 from ..model.circuit import loop
+from ..model.eddy import EddyCoil
 from ..model.pwm import pwm_steady_state
 from ..model.rl import decay_current, rise_current
 
@@ -37,12 +39,25 @@ def sample_at(duty, frequency: float, lp, switch_leg: bool):
     ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
     t = 1.0 / frequency
     t_on = np.asarray(duty, float) * t
+    on_sensed, off_sensed = _sensed(lp)
     if switch_leg:
-        return rise_current(0.5 * t_on, ss.i_min, lp.v_on, lp.r_on, lp.inductance), ss
+        return on_sensed(rise_current(0.5 * t_on, ss.i_min, lp.v_on, lp.r_on, lp.inductance)), ss
     mid = 0.5 * t
     on = rise_current(np.minimum(mid, t_on), ss.i_min, lp.v_on, lp.r_on, lp.inductance)
     off = decay_current(np.maximum(mid - t_on, 0.0), ss.i_max, lp.r_off, lp.v_off, lp.inductance)
-    return np.where(mid <= t_on, on, off), ss
+    return np.where(mid <= t_on, on_sensed(on), off_sensed(off)), ss
+
+
+def _sensed(lp):
+    """``(on, off)``: the sensed (terminal) current as a function of the state the segment
+    functions return -- the current itself, or with an eddy term the magnetising current
+    (``i = (v + R_e i_m) / (r + R_e)`` of the conducting loop, zero once the freewheel
+    blocks; :mod:`coildrive.model.eddy`)."""
+    e = lp.inductance
+    if not isinstance(e, EddyCoil):
+        return (lambda i: i), (lambda i: i)
+    return (lambda m: eddy.terminal(m, lp.v_on, lp.r_on, e.resistance),
+            lambda m: np.maximum(eddy.terminal(m, -lp.v_off, lp.r_off, e.resistance), 0.0))
 
 
 def duty_for_sample(target, frequency: float, lp, switch_leg: bool, low: float = 0.0,

@@ -26,6 +26,25 @@ Discretised exactly with the hold, ``P(z) = b / (z - a)``, ``a = exp(-R_eff T / 
 ``C(z) = Kp + Ki z / (z - 1)``; the loop is ``L(z) = C(z) z^-1 P(z)`` in ADC codes of
 current per timer count of compare.
 
+An eddy-current term (a resistance ``R_e`` across the magnetising branch,
+:mod:`coildrive.model.eddy`) keeps the plant first order: the state is the magnetising
+current ``i_m``, and each loop seen from the branch is its Thevenin pair
+(``V k``, ``R k`` with ``k = R_e / (R + R_e)``), so the averaged branch obeys the same
+equation with ``V_g = k_on V_on + k_off V_off - (k_on R_on - k_off R_off) I`` and
+``R_eff = d k_on R_on + (1 - d) k_off R_off``. What the loop reads is the terminal
+current ``i = (v + R_e i_m) / (r + R_e)`` of the segment its sample falls in (the
+on-time's with the sense resistor under the switch; in the coil path the on-time's
+where ``d >= 1/2``, else the freewheel's): ``di = k di_m``, the ``sensed`` factor of
+:class:`Plant`. The mean of the terminal current has a further, direct term -- the step
+``D`` of the terminal current at the switching edges, weighted by the duty:
+``G_mean(s) = D + K V_g / (R_eff + s L)`` with ``K = d k_on + (1 - d) k_off``, a zero at
+``s = -(R_eff + K V_g / D) / L`` (for equal resistances and no freewheel voltage, the
+zero sits at ``-R_e / L`` and the pole at ``-R R_e / ((R + R_e) L)``, DC gain ``V / R``).
+A sample inside one segment does not carry that step (a small change of the duty moves
+an edge, not the level the sample reads), so the loop's plant is ``k V_g / (R_eff + s
+L)``: the zero belongs to the mean (and to a sense filter averaging over the period),
+not to the sampled loop the driver runs.
+
 Gains: the crossover is placed at :data:`BANDWIDTH_FRACTION` of the PWM frequency at the
 corner with the most loop gain (``V_g / L`` largest), the PI zero :data:`ZERO_RATIO`
 below it; every other corner crosses lower. Everything is plain numpy over the corners;
@@ -39,6 +58,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..model.eddy import EddyCoil
 from ..model.flux import incremental_at
 
 #: Crossover at the fastest corner as a fraction of the PWM frequency (our choice: a
@@ -65,7 +85,9 @@ _GRID_PER_DECADE = 200
 class Plant:
     """The sampled plant at each point: ``P(z) = b / (z - a)``, ``b`` in ADC codes per
     timer count (ZOH over one PWM period), ``a`` dimensionless; ``vg`` V, ``r_eff`` ohm,
-    ``inductance`` H, ``period`` s (the PWM period)."""
+    ``inductance`` H, ``period`` s (the PWM period); ``sensed``: the sample's change per
+    unit change of the plant's state (1; with an eddy term ``R_e / (r + R_e)`` of the
+    segment the sample falls in, ``vg`` and ``r_eff`` then the Thevenin pairs')."""
 
     a: np.ndarray
     b: np.ndarray
@@ -73,21 +95,40 @@ class Plant:
     r_eff: np.ndarray
     inductance: np.ndarray
     period: float
+    sensed: np.ndarray | None = None
+
+    def point(self, k: int) -> "Plant":
+        """The plant of point ``k`` alone."""
+        sl = slice(k, k + 1)
+        return Plant(self.a[sl], self.b[sl], self.vg[sl], self.r_eff[sl], self.inductance[sl],
+                     self.period, None if self.sensed is None else self.sensed[sl])
 
 
-def plant(lp, duty, current, frequency: float, counts: int, codes_per_amp: float) -> Plant:
+def plant(lp, duty, current, frequency: float, counts: int, codes_per_amp: float,
+          switch_leg: bool = False) -> Plant:
     """The linearised, sampled plant at the loops ``lp`` (a
-    :class:`~coildrive.model.circuit.Loop`), operating duty and mean current (A)."""
+    :class:`~coildrive.model.circuit.Loop`), operating duty and mean current (A);
+    ``switch_leg``: the sample falls in the on-time (else in the middle of the period)."""
     d = np.asarray(duty, float)
     i = np.asarray(current, float)
-    vg = lp.v_on + lp.v_off - (lp.r_on - lp.r_off) * i
-    r_eff = d * lp.r_on + (1.0 - d) * lp.r_off
+    coil = lp.inductance
+    k_on = k_off = sensed = 1.0
+    if isinstance(coil, EddyCoil):   # the Thevenin pairs; the mean of i_m is the terminal mean
+        k_on = coil.resistance / (lp.r_on + coil.resistance)
+        k_off = coil.resistance / (lp.r_off + coil.resistance)
+        sensed = k_on if switch_leg else np.where(d >= 0.5, k_on, k_off)
+        coil = coil.magnetising
+    v_on, r_on, v_off, r_off = k_on * lp.v_on, k_on * lp.r_on, k_off * lp.v_off, k_off * lp.r_off
+    vg = v_on + v_off - (r_on - r_off) * i
+    r_eff = d * r_on + (1.0 - d) * r_off
     t = 1.0 / frequency
-    ind = np.asarray(incremental_at(lp.inductance, i), float)   # H: L, or L_d(I) of a curve
+    ind = np.asarray(incremental_at(coil, i), float)   # H: L, or L_d(I) of a curve
     a = np.exp(-r_eff * t / ind)
-    b = vg / r_eff * (1.0 - a) * codes_per_amp / counts
+    sensed = np.asarray(sensed + 0.0 * a, float)
+    b = sensed * vg / r_eff * (1.0 - a) * codes_per_amp / counts
     return Plant(a=np.atleast_1d(a), b=np.atleast_1d(b), vg=np.atleast_1d(vg),
-                 r_eff=np.atleast_1d(r_eff), inductance=np.atleast_1d(ind), period=t)
+                 r_eff=np.atleast_1d(r_eff), inductance=np.atleast_1d(ind), period=t,
+                 sensed=np.atleast_1d(sensed))
 
 
 def loop_gain(kp: float, ki: float, p: Plant, w) -> np.ndarray:
@@ -149,9 +190,7 @@ def margins(kp: float, ki: float, p: Plant) -> Margins:
             out[i] = math.sqrt(a * b)
         return out
 
-    def sub(i: int) -> Plant:
-        return Plant(p.a[i:i + 1], p.b[i:i + 1], p.vg[i:i + 1], p.r_eff[i:i + 1],
-                     p.inductance[i:i + 1], p.period)
+    sub = p.point
 
     wc = refine(first(mag < 1.0), lambda i, m: abs(loop_gain(kp, ki, sub(i), [m])[0, 0]) < 1.0)
     w180 = refine(first(ph < -math.pi), lambda i, m: _phase(kp, ki, sub(i), np.array([w[0], m]))[0, 1] < -math.pi)
@@ -171,7 +210,7 @@ def design_gains(p: Plant, k: int, bandwidth_hz: float) -> tuple[float, float]:
     below it: ``Ki = Kp (w_c / ZERO_RATIO) T`` and ``|L(e^{j w_c T})| = 1``."""
     wc = 2 * math.pi * bandwidth_hz
     ratio = wc / ZERO_RATIO * p.period
-    one = Plant(p.a[k:k + 1], p.b[k:k + 1], p.vg[k:k + 1], p.r_eff[k:k + 1], p.inductance[k:k + 1], p.period)
+    one = p.point(k)
     unit = abs(loop_gain(1.0, ratio, one, [wc])[0, 0])
     kp = 1.0 / unit
     return kp, kp * ratio

@@ -65,8 +65,10 @@ class ClosedLoopResult:
     corners) and the larger of the two (``smallest_step_a``). ``min_duty``/``max_duty``:
     the duty the loop settles at over the corners; ``saturated_corners`` where it would
     need more than ``max_duty_limit`` (or less than the least on-time allows).
-    ``plants``: the linearised plant ``V_g / (R_eff + s L)`` (``vg_v``, ``r_eff_ohm``,
-    ``inductance_h``) with its crossover, margins and settling time at the corners that
+    ``plants``: the linearised plant ``k V_g / (R_eff + s L)`` (``vg_v``, ``r_eff_ohm``,
+    ``inductance_h``, ``sensed_fraction`` = ``k``: 1, or with an eddy term the terminal
+    current's share of the magnetising current's change in the sampled segment, ``vg_v``
+    and ``r_eff_ohm`` then the Thevenin pairs') with its crossover, margins and settling time at the corners that
     name a figure above (``role``: designed, lowest crossover, lowest phase margin,
     slowest settling), for the reader to check with a tool of their own.
     """

@@ -40,6 +40,30 @@ there: the switch stays on and the coil carries ``V / R_on`` (``regulated`` is F
 the integrals are then those of that direct current over a 1 s window, ``frequency`` is
 zero and ``duty`` one).
 
+With an eddy-current term (``inductance`` a :class:`~coildrive.model.eddy.EddyCoil`:
+a resistance ``R_e`` across the magnetising branch) the controller compares the SENSED
+current, the terminal current ``i = (v + R_e i_m) / (r + R_e)`` of the loop that
+conducts, with its thresholds, while the state is the magnetising current ``i_m``. Each
+threshold is therefore a magnetising current that depends on the segment it ends::
+
+    switch on,  sensed current up to I_hi:   m_hi = ((R_on + R_e) I_hi - V) / R_e
+    switch off, sensed current down to I_lo: m_lo = ((R_off + R_e) I_lo + V_off) / R_e
+
+and between them the segments are the magnetising branch's exact Thevenin segments of
+:mod:`coildrive.model.eddy` (after a freewheel blocks, the flux decays through ``R_e``).
+At every switching edge the sensed current steps by about ``(V + V_off) / (R + R_e)``
+while ``i_m`` is continuous, so the ripple of ``i_m`` is the band LESS that step: the
+switching frequency rises against a plain coil of the same inductance, and the sensed
+ripple's ends are the thresholds (moved by the delay). A hysteretic band narrower than
+the step (``m_lo >= m_hi``: ``(R_on + R_e) I_hi - (R_off + R_e) I_lo <= V + V_off``), or
+a peak threshold the switch-on step alone passes (``m_pk <= 0``), has no orbit: every
+edge trips the other threshold at once and the switch chatters at the comparator's own
+speed. Those points are ``chatter`` (and not ``regulated``); the design fails them.
+``i_min``/``i_max`` are then the magnetising current's (the release starts from
+``i_max``), ``terminal_min``/``terminal_max`` the sensed ripple's ends, ``eddy_energy``
+the eddy resistance's energy per period (J), as in the PWM hold
+(:class:`~coildrive.model.pwm.PwmSteadyState`).
+
 All functions broadcast over numpy arrays; units A, V, ohm, H, s, Hz.
 """
 
@@ -49,7 +73,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import flux
+from . import eddy, flux
+from .eddy import EddyCoil
 from .flux import FluxCoil
 from .pwm import PwmSteadyState
 from .rl import decay_current, decay_integrals, decay_time, rise_current, rise_integrals, rise_time
@@ -82,6 +107,10 @@ class CurrentModeSteadyState:
     square_on: np.ndarray
     charge_off: np.ndarray
     square_off: np.ndarray
+    terminal_min: np.ndarray | None = None
+    terminal_max: np.ndarray | None = None
+    eddy_energy: np.ndarray | None = None
+    chatter: np.ndarray | None = None
 
     def as_pwm(self) -> PwmSteadyState:
         """The same steady state in the voltage-mode container (same field meanings), so
@@ -89,17 +118,23 @@ class CurrentModeSteadyState:
         return PwmSteadyState(i_min=self.i_min, i_max=self.i_max, mean=self.mean, rms=self.rms,
                               ripple=self.ripple, dcm=self.dcm, conduction_off=self.conduction_off,
                               period=self.period, charge_on=self.charge_on, square_on=self.square_on,
-                              charge_off=self.charge_off, square_off=self.square_off)
+                              charge_off=self.charge_off, square_off=self.square_off,
+                              terminal_min=self.terminal_min, terminal_max=self.terminal_max,
+                              eddy_energy=self.eddy_energy)
+
+
+def _unregulated(bottom, top, t_on, t_off, conduction, a, regulated):
+    """The orbit's ends and times, where not ``regulated`` those of the switch left on
+    with the coil at ``a`` = V/R_on (a 1 s window of DC)."""
+    return (np.where(regulated, bottom, a), np.where(regulated, top, a),
+            np.where(regulated, t_on, 1.0), np.where(regulated, t_off, 0.0),
+            np.where(regulated, conduction, 0.0))
 
 
 def _finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, inductance, regulated):
     a = v_on / r_on
-    # unregulated: the switch stays on and the coil carries V/R_on (1 s window of DC)
-    bottom = np.where(regulated, bottom, a)
-    top = np.where(regulated, top, a)
-    t_on = np.where(regulated, t_on, 1.0)
-    t_off = np.where(regulated, t_off, 0.0)
-    conduction = np.where(regulated, conduction, 0.0)
+    bottom, top, t_on, t_off, conduction = _unregulated(bottom, top, t_on, t_off, conduction, a,
+                                                        regulated)
     period = t_on + t_off
     if isinstance(inductance, FluxCoil):
         # the curve's segments between their known end currents (no current-after-time
@@ -127,7 +162,16 @@ def _finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, indu
 
 def _broadcast(values, inductance):
     """The arguments as float arrays broadcast together, with the inductance: a linear
-    coil's H joins the broadcast; a :class:`FluxCoil`'s per-point scale does."""
+    coil's H joins the broadcast; a :class:`FluxCoil`'s per-point scale does; an
+    :class:`EddyCoil`'s resistance and magnetising branch do."""
+    if isinstance(inductance, EddyCoil):
+        m = inductance.magnetising
+        per_point = m.scale if isinstance(m, FluxCoil) else m
+        *out, r_e, mag = np.broadcast_arrays(*(np.asarray(x, float) for x in values),
+                                             np.asarray(inductance.resistance, float),
+                                             np.asarray(per_point, float))
+        mag = m.with_scale(mag) if isinstance(m, FluxCoil) else mag
+        return (*out, EddyCoil(mag, r_e))
     if isinstance(inductance, FluxCoil):
         *out, scale = np.broadcast_arrays(*(np.asarray(x, float) for x in values),
                                           np.asarray(inductance.scale, float))
@@ -144,6 +188,8 @@ def hysteretic_steady_state(i_lo, i_hi, v_on, r_on, r_off, v_off, inductance,
     """
     i_lo, i_hi, v_on, r_on, r_off, v_off, delay, inductance = _broadcast(
         (i_lo, i_hi, v_on, r_on, r_off, v_off, delay), inductance)
+    if isinstance(inductance, EddyCoil):
+        return _eddy_hysteretic(i_lo, i_hi, v_on, r_on, r_off, v_off, inductance, delay)
     a = v_on / r_on
     regulated = i_hi < a
     hi = np.where(regulated, i_hi, 0.5 * a)  # any level below A where unregulated: _finish replaces those
@@ -165,6 +211,8 @@ def off_time_steady_state(i_peak, t_off, v_on, r_on, r_off, v_off, inductance,
     """Peak threshold ``i_peak`` A, fixed off time ``t_off`` s, ``delay`` s to turn off."""
     i_peak, t_off, v_on, r_on, r_off, v_off, delay, inductance = _broadcast(
         (i_peak, t_off, v_on, r_on, r_off, v_off, delay), inductance)
+    if isinstance(inductance, EddyCoil):
+        return _eddy_off_time(i_peak, t_off, v_on, r_on, r_off, v_off, inductance, delay)
     a = v_on / r_on
     regulated = i_peak < a
     pk = np.where(regulated, i_peak, 0.5 * a)
@@ -176,3 +224,108 @@ def off_time_steady_state(i_peak, t_off, v_on, r_on, r_off, v_off, inductance,
     t_on = rise_time(pk, np.minimum(bottom, pk), v_on, r_on, inductance) + delay
     return _finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, inductance,
                    regulated)
+
+
+# ------------------------------------------------------------------- an eddy-current term
+def sensed_threshold(level, v, r, r_e):
+    """The magnetising current (A) at which the sensed (terminal) current of a loop
+    conducting ``v`` V through ``r`` ohm is ``level`` A: ``((r + R_e) level - v) / R_e``
+    (for the freewheel loop ``v = -V_off``)."""
+    return ((np.asarray(r, float) + r_e) * np.asarray(level, float) - np.asarray(v, float)) / r_e
+
+
+def _eddy_hysteretic(i_lo, i_hi, v_on, r_on, r_off, v_off, e: EddyCoil, delay):
+    """:func:`hysteretic_steady_state` with an eddy term (module docstring): the band's
+    ends as magnetising currents, each segment the branch's exact one."""
+    r_e = e.resistance
+    m_hi = sensed_threshold(i_hi, v_on, r_on, r_e)
+    m_lo = sensed_threshold(i_lo, -v_off, r_off, r_e)
+    reachable = i_hi < v_on / r_on
+    chatter = reachable & (m_lo >= m_hi)
+    regulated = reachable & ~chatter
+    hi = np.where(regulated, m_hi, 0.5 * v_on / r_on)   # placeholders where not regulated
+    lo = np.where(regulated, m_lo, 0.25 * v_on / r_on)
+    late = np.any(delay > 0)
+    top = eddy.rise_current(delay, hi, v_on, r_on, e) if late else hi  # run-on past I_hi
+    down = eddy.decay_time(lo, top, r_off, v_off, e)                  # sensed: top -> I_lo
+    if late:   # the run-on past I_lo (the freewheel may block in it: the flux then via R_e)
+        bottom = eddy.decay_current(delay, lo, r_off, v_off, e)
+        conduction = down + np.minimum(delay, eddy.conduction_time(lo, r_off, v_off, e))
+    else:      # I_lo >= 0: the freewheel conducts down to it
+        bottom, conduction = lo, down
+    t_off = down + delay
+    t_on = eddy.rise_time(hi, bottom, v_on, r_on, e) + delay
+    return _eddy_finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, e,
+                        regulated, chatter)
+
+
+def _eddy_off_time(i_peak, t_off, v_on, r_on, r_off, v_off, e: EddyCoil, delay):
+    """:func:`off_time_steady_state` with an eddy term: the peak threshold as a
+    magnetising current; the fixed off time decays the flux through the freewheel path
+    and, once it blocks, through ``R_e``."""
+    r_e = e.resistance
+    m_pk = sensed_threshold(i_peak, v_on, r_on, r_e)
+    reachable = i_peak < v_on / r_on
+    chatter = reachable & (m_pk <= 0.0)
+    regulated = reachable & ~chatter
+    pk = np.where(regulated, m_pk, 0.5 * v_on / r_on)
+    top = eddy.rise_current(delay, pk, v_on, r_on, e)                 # run-on past I_pk
+    bottom = eddy.decay_current(t_off, top, r_off, v_off, e)
+    conduction = np.minimum(t_off, eddy.conduction_time(top, r_off, v_off, e))
+    t_on = eddy.rise_time(pk, np.minimum(bottom, pk), v_on, r_on, e) + delay
+    return _eddy_finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, e,
+                        regulated, chatter)
+
+
+def _eddy_finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, e: EddyCoil,
+                 regulated, chatter):
+    """The steady state from the magnetising current's orbit: the terminal current's
+    integrals (on from ``bottom``, off from ``top`` through the whole off time: the
+    eddy energy counts the flux's tail through ``R_e`` after the freewheel blocks)."""
+    a = v_on / r_on
+    bottom, top, t_on, t_off, conduction = _unregulated(bottom, top, t_on, t_off, conduction, a,
+                                                        regulated)
+    period = t_on + t_off
+    r_e = e.resistance
+    q_on, s_on, w_on, q_off, s_off, w_off = _eddy_integrals(bottom, top, t_on, t_off, conduction,
+                                                            v_on, r_on, r_off, v_off, e)
+    # unregulated: the coil carries V/R_on, no branch voltage and so no eddy current
+    q_on, s_on = np.where(regulated, q_on, a * t_on), np.where(regulated, s_on, a * a * t_on)
+    q_off, s_off = np.where(regulated, q_off, 0.0), np.where(regulated, s_off, 0.0)
+    w = np.where(regulated, w_on + w_off, 0.0)
+    dcm = regulated & (conduction < t_off)
+    t_max = np.where(regulated, eddy.terminal(top, v_on, r_on, r_e), a)
+    t_min = np.where(regulated, np.where(dcm, 0.0, eddy.terminal(bottom, -v_off, r_off, r_e)), a)
+    mean = (q_on + q_off) / period
+    rms = np.sqrt(np.maximum((s_on + s_off) / period, 0.0))
+    return CurrentModeSteadyState(
+        i_min=bottom, i_max=top, mean=mean, rms=rms, ripple=t_max - t_min, t_on=t_on, t_off=t_off,
+        period=period, frequency=np.where(regulated, 1.0 / period, 0.0), duty=t_on / period,
+        regulated=regulated, dcm=dcm, conduction_off=conduction, charge_on=q_on, square_on=s_on,
+        charge_off=q_off, square_off=s_off, terminal_min=t_min, terminal_max=t_max, eddy_energy=w,
+        chatter=chatter)
+
+
+def _eddy_integrals(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, e: EddyCoil):
+    """Terminal ``(q_on, s_on, w_on, q_off, s_off, w_off)`` (A*s, A^2*s, J of the eddy
+    resistance) of an orbit whose magnetising current's ends are known: on from
+    ``bottom`` to ``top``; off, the freewheel conducting for ``conduction`` s from ``top``
+    down to ``bottom`` or to ``V_off / R_e`` where it blocks, then the flux through
+    ``R_e`` alone down to ``bottom``. From the end currents, a curve's segments need no
+    current-after-time search (:func:`coildrive.model.eddy.branch_integrals`)."""
+    r_e, mag = e.resistance, e.magnetising
+    ib = eddy.block_current(v_off, r_e)
+    vt_on, rt_on = eddy.thevenin(v_on, r_on, r_e)
+    vt_off, rt_off = eddy.thevenin(-v_off, r_off, r_e)
+    stop = np.where(top > ib, np.maximum(bottom, ib), top)   # where the conduction ends
+    with np.errstate(invalid="ignore"):
+        qm, sm = eddy.branch_integrals(mag, t_on, bottom, top, vt_on, rt_on)
+        qm_off, sm_off = eddy.branch_integrals(mag, conduction, top, stop, vt_off, rt_off)
+        tail = bottom < stop
+        _, s_tail = eddy.branch_integrals(mag, np.where(tail, t_off - conduction, 0.0),
+                                          np.where(tail, stop, 1.0), np.where(tail, bottom, 1.0),
+                                          0.0, r_e)
+    q_on, s_on, w_on = eddy._terminal_integrals(t_on, qm, sm, v_on, r_on, r_e)
+    q_off, s_off, w_off = eddy._terminal_integrals(conduction, qm_off, sm_off, -v_off, r_off, r_e)
+    w_off = w_off + np.where(tail, r_e * s_tail, 0.0)
+    return q_on, s_on, w_on, q_off, s_off, w_off

@@ -106,6 +106,28 @@ class _Point:
         return tb + float(self.tail.time_at(i1) - self.tail.time_at(min(i0, self.ib)))
 
 
+def _peak(drive: Drive, lp: Loop, peak_time: float, big: int):
+    """The operating point's tables and the peak's ``big`` + 1 samples from zero flux:
+    ``(point, magnetising current at the peak's end A, [time], [terminal], [magnetising],
+    [switch_on])``; on a drooping bus (``supply.source_resistance``) the peak's closed
+    form of :mod:`coildrive.model.supply`."""
+    e = lp.inductance[...]
+    v, r_on = (float(np.ravel(x)[0]) for x in (lp.v_on, lp.r_on))
+    tp = np.linspace(0.0, peak_time, big + 1)
+    if drive.supply.droops:
+        s = drive.supply
+        b = bus_model.bus(v, s.source_resistance, s.capacitance, r_on,
+                          float(np.ravel(e.magnetising)[0]), float(np.ravel(e.resistance)[0]))
+        mp, vp = bus_model.state(tp, b)
+        peak_end = float(mp[-1])
+        return _Point(lp, peak_end), peak_end, [tp], [bus_model.terminal(mp, vp, b)], [mp], [np.ones_like(tp)]
+    peak_end = float(np.ravel(eddy.rise_current(peak_time, 0.0, v, r_on, e))[0])
+    pt = _Point(lp, peak_end)
+    mp = pt.on.current(0.0, tp)
+    mp[-1] = peak_end
+    return pt, peak_end, [tp], [pt.on_terminal(mp)], [mp], [np.ones_like(tp)]
+
+
 def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: float,
               hold_time: float, points: int, release: Loop | None = None, lead: float = 0.0):
     """The sample pieces of one actuation: ``(time, terminal current, magnetising
@@ -115,25 +137,8 @@ def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: 
     ``release``: the loop of the release (split decay's fast path; ``None``: ``lp``'s),
     its bypass opening ``lead`` s before the final turn-off (a sample there when that is
     inside the last on-time; the pieces are then not in time order)."""
-    e = lp.inductance[...]
-    v, r_on = (float(np.ravel(x)[0]) for x in (lp.v_on, lp.r_on))
+    pt, peak_end, ts, cs, ms, ons = _peak(drive, lp, peak_time, 40 * points)
     big = 40 * points
-    tp = np.linspace(0.0, peak_time, big + 1)
-    if drive.supply.droops:   # the peak on the drooping bus, closed form (model/supply.py)
-        s = drive.supply
-        b = bus_model.bus(v, s.source_resistance, s.capacitance, r_on,
-                          float(np.ravel(e.magnetising)[0]), float(np.ravel(e.resistance)[0]))
-        mp, vp = bus_model.state(tp, b)
-        peak_end = float(mp[-1])
-        pt = _Point(lp, peak_end)
-        cp = bus_model.terminal(mp, vp, b)
-    else:
-        peak_end = float(np.ravel(eddy.rise_current(peak_time, 0.0, v, r_on, e))[0])
-        pt = _Point(lp, peak_end)
-        mp = pt.on.current(0.0, tp)
-        mp[-1] = peak_end
-        cp = pt.on_terminal(mp)
-    ts, ms, cs, ons = [tp], [mp], [cp], [np.ones_like(tp)]
     period = 1.0 / frequency
     n = max(1, int(round(hold_time * frequency)))
     t_on, t_off = duty * period, (1.0 - duty) * period
@@ -163,6 +168,13 @@ def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: 
         cs.append(np.atleast_1d(pt.on_terminal(m_open)))
         ons.append(np.ones(1))
     pt = pt if release is None else _Point(release, i_cut)
+    return ts, cs, ms, ons, t_cut, _release(pt, t_cut, i_cut, big, ts, cs, ms, ons)
+
+
+def _release(pt: _Point, t_cut: float, i_cut: float, big: int, ts, cs, ms, ons) -> float:
+    """Append the release from a magnetising current ``i_cut`` A at ``t_cut`` s to the
+    sample pieces (until the flux's current is :data:`TAIL_FRACTION` of ``i_cut``);
+    returns the time (s) the terminal current reaches zero."""
     tz = float(pt.conduction(i_cut))
     t_end = max(pt.time_to(i_cut, TAIL_FRACTION * i_cut), tz)
     td = np.unique(np.concatenate([np.linspace(0.0, tz, big + 1), np.linspace(tz, t_end, big + 1)]))
@@ -171,4 +183,54 @@ def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: 
     ms.append(md)
     cs.append(pt.off_terminal(md))
     ons.append(np.zeros_like(td))
-    return ts, cs, ms, ons, t_cut, t_cut + tz
+    return t_cut + tz
+
+
+def threshold_actuation(drive: Drive, lp: Loop, peak_time: float, hold_time: float,
+                        points: int, control: str, lower: float, upper: float,
+                        off_time: float, delay: float):
+    """The sample pieces of one actuation with a current-mode hold (the pieces and
+    returns of :func:`actuation`): the controller compares the SENSED (terminal) current
+    with its thresholds -- hysteretic: off when it reaches ``upper`` A, on again when it
+    falls to ``lower`` A; ``"off_time"``: off at ``upper`` A for ``off_time`` s -- each
+    edge ``delay`` s late. A threshold is a magnetising current that depends on the
+    loop that conducts (:func:`coildrive.model.current_mode.sensed_threshold`); the hold
+    ends at the top of its last on-time after ``hold_time`` s. The terminal current
+    steps at every edge (two samples at the edge's instant)."""
+    pt, peak_end, ts, cs, ms, ons = _peak(drive, lp, peak_time, 40 * points)
+    big = 40 * points
+    v, r_on = pt.v, pt.r_on
+    m_hi = (r_on + pt.re) * upper / pt.re - v / pt.re
+    m_lo = ((pt.r_off + pt.re) * lower + pt.v_off) / pt.re
+    top = pt.on.i[-1]
+    regulated = upper < v / r_on and (m_lo < m_hi if control == "hysteretic" else m_hi > 0)
+    t, m, end, first = peak_time, peak_end, peak_time + hold_time, True
+    frac = np.linspace(0.0, 1.0, points + 1)
+
+    def on_for(t, m, dur):   # append an on segment of dur s from i_m = m A at t s
+        tu = frac * dur
+        mu = pt.on.current(m, tu)
+        ts.append(t + tu)
+        ms.append(mu)
+        cs.append(pt.on_terminal(mu))
+        ons.append(np.ones_like(tu))
+        return t + dur, float(mu[-1])
+
+    while regulated and t < end:
+        dur = (pt.time_to(m, m_lo) if m > m_lo else 0.0) + delay if control == "hysteretic" else off_time
+        n = big if first else points
+        first = False
+        tb = float(pt.conduction(m))
+        td = np.unique(np.concatenate([np.linspace(0.0, dur, n + 1), [tb] if tb < dur else []]))
+        md = pt.decay(m, td)
+        ts.append(t + td)
+        ms.append(md)
+        cs.append(pt.off_terminal(md))
+        ons.append(np.zeros_like(td))
+        t, m = t + dur, float(md[-1])
+        dur = (float(pt.on.time_at(min(m_hi, top)) - pt.on.time_at(m)) if m < m_hi else 0.0) + delay
+        if dur > 0:
+            t, m = on_for(t, m, dur)
+    if not regulated:   # the threshold is out of reach (or chatters): the switch stays on
+        t, m = on_for(t, m, hold_time)
+    return ts, cs, ms, ons, t, _release(pt, t, m, big, ts, cs, ms, ons)

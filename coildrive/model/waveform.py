@@ -275,8 +275,20 @@ def _eddy_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: flo
 
     bridged = full_bridge(drive)
     lead = drive.freewheel.bypass_lead if fast is not None and not bridged else 0.0
-    ts, cs, ms, ons, t_cut, t_zero = eddy_samples(drive, lp, peak_time, duty, frequency,
-                                                   hold_time, points, fast, lead)
+    pieces = eddy_samples(drive, lp, peak_time, duty, frequency, hold_time, points, fast, lead)
+    return eddy_waveform(drive, lp, supply, pieces, peak_time, label, fast, lead,
+                         duty / frequency)
+
+
+def eddy_waveform(drive: Drive, lp, supply: float, pieces, peak_time: float, label: str,
+                  fast=None, lead: float = 0.0, last_on: float = 0.0) -> Waveform:
+    """The :class:`Waveform` of an actuation with an eddy term from its sample pieces
+    ``(time, terminal current, magnetising current, switch_on, t_off, t_zero)`` (of
+    :mod:`coildrive.model.eddy_waveform`); ``fast``/``lead``/``last_on`` (s): split
+    decay's release loop (a full bridge's fast decay), its bypass lead and the last
+    on-time."""
+    bridged = full_bridge(drive)
+    ts, cs, ms, ons, t_cut, t_zero = pieces
     order = np.argsort(np.concatenate(ts), kind="stable")   # the bypass's sample, in place
     ts, cs, ms, ons = ([np.concatenate(x)[order]] for x in (ts, cs, ms, ons))
     time = np.concatenate(ts)
@@ -304,7 +316,7 @@ def _eddy_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: flo
                         magnetising_current=magnetising, **extra)
     extra = {}
     if fast is not None:   # split decay: the fast path's switch voltage once the bypass opens
-        t_open = max(t_cut - lead, t_cut - duty / frequency)
+        t_open = max(t_cut - lead, t_cut - last_on)
         events["bypass_open"] = t_open
         bypass = (time < t_open).astype(np.int8)
         v_sw = np.where(bypass == 1, v_sw, _switch_and_sense(drive, fast, supply, current, on)[0])
