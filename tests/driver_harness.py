@@ -95,9 +95,25 @@ def write_sources(folder: Path, d, script: list[tuple[str, int]]) -> list[str]:
     return [str(PROGRAM), str(folder / "coil_driver.c")]
 
 
-def run_host(folder: Path, d, script: list[tuple[str, int]], flags: tuple[str, ...] = ()) -> Run:
+LATCH_PROGRAM = ROOT / "tests" / "data" / "latch_target.c"
+LATCH_OPS = {"set": 1, "reset": 2, "stop": 3, "run": 4}
+
+
+def write_latch_sources(folder: Path, d, script: list[tuple[str, int]]) -> list[str]:
+    """The latching coil's driver (a LatchDesign ``d``) and tests/data/latch_target.c's
+    scenario: set, reset, stop, run <ticks>."""
+    from coildrive.codegen.latch_driver import render_latch_driver
+    for name, text in render_latch_driver(d, "coil").items():
+        (folder / name).write_text(text)
+    rows = ",\n".join(f"    {{{LATCH_OPS[op]}UL, {arg}UL}}" for op, arg in script)
+    (folder / "scenario.h").write_text(f"#include <stdint.h>\nstatic const uint32_t scenario[][2] = {{\n{rows}\n}};\n")
+    return [str(LATCH_PROGRAM), str(folder / "coil_driver.c")]
+
+
+def run_host(folder: Path, d, script: list[tuple[str, int]], flags: tuple[str, ...] = (),
+             writer=write_sources) -> Run:
     gcc = require_tool("gcc")
-    sources = write_sources(folder, d, script)
+    sources = writer(folder, d, script)
     exe = folder / "host"
     build = subprocess.run([gcc, *STRICT, "-O2", *flags, "-I", str(folder), *sources, "-o", str(exe)],
                            capture_output=True, text=True, timeout=120)
@@ -115,9 +131,10 @@ def uart_lines(stderr: str) -> list[str]:
     return "".join(text).splitlines()
 
 
-def run_avr(folder: Path, d, script: list[tuple[str, int]], flags: tuple[str, ...] = ()) -> Run:
+def run_avr(folder: Path, d, script: list[tuple[str, int]], flags: tuple[str, ...] = (),
+            writer=write_sources) -> Run:
     avr_gcc, simavr = require_tool("avr-gcc"), require_tool("simavr")
-    sources = write_sources(folder, d, script)
+    sources = writer(folder, d, script)
     elf = folder / "prog.elf"
     build = subprocess.run([avr_gcc, "-mmcu=atmega328p", "-Os", *STRICT, *flags, "-I", str(folder), *sources,
                             "-o", str(elf)], capture_output=True, text=True, timeout=120)

@@ -76,18 +76,24 @@ def seat_grace_ticks(design: Design) -> int:
     return math.ceil(climb * design.drive.board.tick.rate - 1e-9) + 1
 
 
+def file_names(view, prefix: str) -> None:
+    """Set a driver view's C names from ``prefix`` (checked): ``lower``, ``macro``, the
+    three file names and the header guard."""
+    check_prefix(prefix)
+    view.lower = prefix.lower()
+    view.macro = prefix.upper()
+    view.drive_header = f"{view.lower}_drive.h"
+    view.header_name = f"{view.lower}_driver.h"
+    view.source_name = f"{view.lower}_driver.c"
+    view.guard = f"{view.macro}_DRIVER_H"
+
+
 class DriverView:
     """C-facing view of a design for the driver templates."""
 
     def __init__(self, design: Design, prefix: str = "coil"):
         self.design = d = design
-        check_prefix(prefix)
-        self.lower = prefix.lower()
-        self.macro = prefix.upper()
-        self.drive_header = f"{self.lower}_drive.h"
-        self.header_name = f"{self.lower}_driver.h"
-        self.source_name = f"{self.lower}_driver.c"
-        self.guard = f"{self.macro}_DRIVER_H"
+        file_names(self, prefix)
         board = d.drive.board
         self.compare_type = c_uint_type(d.timer.period_ticks)
         self.adc_type = c_uint_type(2**board.adc.bits - 1)
@@ -181,6 +187,18 @@ class DriverView:
         self.fault_codes = [(f.name, int(f)) for f in FaultCode]
 
 
+def template_env():
+    """The Jinja2 environment of ``codegen_templates/driver/`` (jinja2 imported here: only
+    the code generators pay for it)."""
+    import jinja2
+
+    return jinja2.Environment(
+        loader=jinja2.FileSystemLoader(str(data_dir("codegen_templates") / "driver")),
+        undefined=jinja2.StrictUndefined, keep_trailing_newline=True,
+        trim_blocks=True, lstrip_blocks=True, autoescape=False,
+    )
+
+
 def render_driver(design: Design, prefix: str = "coil") -> dict[str, str]:
     """Render the design header and the reference driver for ``design``.
 
@@ -192,14 +210,8 @@ def render_driver(design: Design, prefix: str = "coil") -> dict[str, str]:
         naming ``--prefix`` when it is not a C identifier, or the drive file when its hold
         is one this driver does not run.
     """
-    import jinja2  # only the code generators pay for it
-
     view = DriverView(design, prefix)
-    env = jinja2.Environment(
-        loader=jinja2.FileSystemLoader(str(data_dir("codegen_templates") / "driver")),
-        undefined=jinja2.StrictUndefined, keep_trailing_newline=True,
-        trim_blocks=True, lstrip_blocks=True, autoescape=False,
-    )
+    env = template_env()
     return {
         view.drive_header: generate_header(design, view.macro),
         view.header_name: env.get_template("driver.h.j2").render(v=view, d=design),
