@@ -101,11 +101,9 @@ class DriverView:
         #: a full bridge: the phase masks of the header drive its four switches
         #: (port_bridge), the enable (port_switch) opens all four at once
         self.bridge = d.topology is not None and d.topology.bridge is not None
-        if d.drive.hold.fast_fraction > 0:
-            raise InputError(d.drive.source or d.drive.name, "hold.fast_fraction",
-                             f"{d.drive.hold.fast_fraction:g}: this driver's bridge holds in slow "
-                             "decay only (its hold duty would be wrong for mixed decay), expected "
-                             "fast_fraction left out for firmware-driver and emulate --firmware")
+        #: a bridge's mixed-decay hold: each off-time fast (all four open) until the count
+        #: port_fast_end gives (compare + HOLD_FAST_Q16 of the off-time), then slow
+        self.mixed = self.bridge and d.topology.bridge.hold_decay == "mixed"
         #: a boosted peak: the boost switch (port_boost) on in the peak until the ADC
         #: handler reads BOOST_THRESHOLD_CODE; BOOST_TIMEOUT_TICKS without it is a fault;
         #: the next switch-on waits BOOST_MIN_INTERVAL_TICKS (when the design gives it)
@@ -231,9 +229,11 @@ def render_driver(design: Design, prefix: str = "coil") -> dict[str, str]:
 #: routines of an 8-bit core), over the closed-loop example's script; ``adc_isr_bridge`` is
 #: a full bridge's (the phase masks set at each switch-on), over the bridge example's;
 #: ``adc_isr_boost`` a boosted peak's (the threshold, the boost switch and the ON and
-#: PEAK_END events sent from the handler), over the boost example's with its time-out.
+#: PEAK_END events sent from the handler), over the boost example's with its time-out;
+#: ``adc_isr_mixed`` a mixed-decay bridge's (the fast part's end, a 32-bit multiply, with
+#: each new compare), over the bridge example with ``fast_fraction = 0.3``.
 HANDLER_CYCLES = {"adc_isr": 340, "pwm_isr": 11, "tick": 692, "threshold_isr": 137,
-                  "adc_isr_closed_loop": 602, "adc_isr_bridge": 346, "adc_isr_boost": 404}
+                  "adc_isr_closed_loop": 602, "adc_isr_bridge": 346, "adc_isr_boost": 404, "adc_isr_mixed": 452}
 #: Worst-case cycle bounds of each handler on Cortex-M cores, over the same drive shapes
 #: and script (tests/test_driver_qemu.py): arm-none-eabi-gcc 12.2 -Os builds run under
 #: QEMU 7.2 (mps2-an385: Cortex-M3, and the ARMv6-M code of the M0+; mps2-an386:
@@ -245,19 +245,25 @@ HANDLER_CYCLES = {"adc_isr": 340, "pwm_isr": 11, "tick": 692, "threshold_isr": 1
 #: figure exceeds its bound or all fall 10 % below it.
 CORTEX_CYCLES = {
     "cortex-m0plus": {"adc_isr": 324, "pwm_isr": 13, "tick": 525, "threshold_isr": 121,
-                      "adc_isr_closed_loop": 310, "adc_isr_bridge": 324, "adc_isr_boost": 362},
+                      "adc_isr_closed_loop": 310, "adc_isr_bridge": 324, "adc_isr_boost": 362,
+                      "adc_isr_mixed": 368},
     "cortex-m3": {"adc_isr": 305, "pwm_isr": 8, "tick": 509, "threshold_isr": 102,
-                  "adc_isr_closed_loop": 308, "adc_isr_bridge": 306, "adc_isr_boost": 327},
+                  "adc_isr_closed_loop": 308, "adc_isr_bridge": 306, "adc_isr_boost": 327,
+                  "adc_isr_mixed": 346},
     "cortex-m4": {"adc_isr": 305, "pwm_isr": 8, "tick": 509, "threshold_isr": 102,
-                  "adc_isr_closed_loop": 308, "adc_isr_bridge": 306, "adc_isr_boost": 327},
+                  "adc_isr_closed_loop": 308, "adc_isr_bridge": 306, "adc_isr_boost": 327,
+                  "adc_isr_mixed": 346},
 }
 CORTEX_INSTRUCTIONS = {
     "cortex-m0plus": {"adc_isr": 176, "pwm_isr": 4, "tick": 373, "threshold_isr": 63,
-                      "adc_isr_closed_loop": 165, "adc_isr_bridge": 176, "adc_isr_boost": 194},
+                      "adc_isr_closed_loop": 165, "adc_isr_bridge": 176, "adc_isr_boost": 194,
+                      "adc_isr_mixed": 203},
     "cortex-m3": {"adc_isr": 147, "pwm_isr": 2, "tick": 305, "threshold_isr": 53,
-                  "adc_isr_closed_loop": 148, "adc_isr_bridge": 148, "adc_isr_boost": 159},
+                  "adc_isr_closed_loop": 148, "adc_isr_bridge": 148, "adc_isr_boost": 159,
+                  "adc_isr_mixed": 170},
     "cortex-m4": {"adc_isr": 147, "pwm_isr": 2, "tick": 305, "threshold_isr": 53,
-                  "adc_isr_closed_loop": 148, "adc_isr_bridge": 148, "adc_isr_boost": 159},
+                  "adc_isr_closed_loop": 148, "adc_isr_bridge": 148, "adc_isr_boost": 159,
+                  "adc_isr_mixed": 170},
 }
 #: How each core's figures were had, for the printed timing line.
 _CYCLE_SOURCES = {
@@ -281,11 +287,12 @@ WARN_SHARE = 0.5
 def budget_key(design: Design, handler: str) -> str:
     """The :data:`HANDLER_CYCLES` entry of ``handler`` for ``design``: a closed-loop hold's
     ADC handler runs the PI step (32-bit multiplies: slow on an 8-bit core) and has its own,
-    as have a full bridge's and a boosted peak's."""
+    as have a full bridge's (a mixed-decay hold's: the fast part's end worked out with each
+    new compare) and a boosted peak's."""
     if handler == "adc_isr" and regulation_of(design) == "closed_loop":
         return "adc_isr_closed_loop"
     if handler == "adc_isr" and design.topology is not None and design.topology.bridge is not None:
-        return "adc_isr_bridge"
+        return "adc_isr_mixed" if design.topology.bridge.hold_decay == "mixed" else "adc_isr_bridge"
     if handler == "adc_isr" and design.boost is not None:
         return "adc_isr_boost"
     return handler

@@ -7,6 +7,7 @@
  *   b <tick> <conversion> <closed>         the bypass hook
  *   g <tick> <conversion> <masks>          a full bridge's hook: on-time mask + 16 x off-time mask
  *   k <tick> <conversion> <on>             a boosted peak's boost-switch hook
+ *   f <tick> <conversion> <counts>         a mixed-decay hold's fast-end hook
  *   x <state> <fault>                      after each scenario step
  * and the worst cycle counts of the handlers (AVR: Timer1 at clk/1; host: 0):
  *   c <name> <cycles>
@@ -61,6 +62,9 @@ void coil_port_bridge(uint8_t on_time, uint8_t off_time) { log_add('g', (int32_t
 #endif
 #ifdef COIL_BOOST_PEAK
 void coil_port_boost(uint8_t on) { log_add('k', on); }
+#endif
+#ifdef COIL_HOLD_FAST_Q16
+void coil_port_fast_end(coil_compare_t counts) { log_add('f', (int32_t)counts); }
 #endif
 void coil_port_adc_start(void) { }
 coil_adc_t coil_port_read_current(void) { return (coil_adc_t)current; }
