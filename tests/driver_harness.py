@@ -178,13 +178,16 @@ def budget_script(d) -> list[tuple[str, int]]:
 
 
 #: Drive shapes whose handlers the budget covers: every bundled example (the closed-loop
-#: one included), the bridge example with a mixed-decay hold, and the demo with each
-#: current-mode control.
+#: one included), the bridge example with a moving armature and with a mixed-decay hold,
+#: and the demo with each current-mode control.
 def budget_shapes() -> list[tuple[str, object]]:
     shapes = [(name, example_design(name)) for name in
               ("demo-valve", "door-latch-24v", "locker-latch-12v", "pinch-valve-48v", "relay-12v",
                "wash-valve-split-24v", "dosing-valve-closed-loop", "dosing-valve-bridge-24v",
                "fuel-valve-boost-12v")]
+    from test_bridge_armature import ARMATURE
+    shapes.append(("dosing-valve-bridge-24v armature", example_design(
+        "dosing-valve-bridge-24v", ('[release]\ncurrent = "0.08 A"', ARMATURE + '\n[release]\ncurrent = "0.12 A"'))))
     shapes.append(("dosing-valve-bridge-24v mixed", example_design(
         "dosing-valve-bridge-24v", ("[hold]\n", "[hold]\nfast_fraction = 0.3\n"))))
     for control in ("hysteretic", "off_time"):

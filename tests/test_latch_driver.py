@@ -129,3 +129,26 @@ def test_firmware_driver_writes_the_latch_driver(tmp_path):
     assert sorted(p.name for p in (tmp_path / "fw").iterdir()) == ["relay1_drive.h", "relay1_driver.c", "relay1_driver.h"]
     assert "RELAY1_MIN_INTERVAL_TICKS" in (tmp_path / "fw" / "relay1_drive.h").read_text()
     assert f"tick {LATCH_TICK_CYCLES['avr']} of 16,000 cycles a tick" in r.stderr, r.stderr
+
+
+def test_latch_driver_compiles_warning_free_in_every_dialect(tmp_path):
+    """Both examples' drivers, each under its own prefix in one unit, for every target of
+    tests/test_cross_compile.py (C99, C11, C++11 on the host; Cortex-M0+, M4; ATmega328P)
+    with every warning an error."""
+    import subprocess
+
+    from coildrive.codegen.latch_driver import render_latch_driver
+    from conftest import require_tool
+    from test_cross_compile import STRICT, TARGETS
+
+    lines = []
+    for name, d in DESIGNS.items():
+        for file, text in render_latch_driver(d, name).items():
+            (tmp_path / file).write_text(text)
+        lines.append(f'#include "{name}_driver.c"')
+    (tmp_path / "drivers.c").write_text("\n".join(lines) + "\n")
+    for target, (compiler, flags, _) in TARGETS.items():
+        r = subprocess.run([require_tool(compiler), *STRICT, *flags, "-I", str(tmp_path), "-c",
+                            str(tmp_path / "drivers.c"), "-o", str(tmp_path / f"{target}.o")],
+                           capture_output=True, text=True, timeout=120)
+        assert r.returncode == 0 and r.stderr == "", f"{target}:\n{r.stderr}"

@@ -28,7 +28,8 @@ settings built in). Until the first command the device actuates by itself.
 With an ``[armature]`` the current while the switch is held fully on from rest is the
 design's armature model (the pull-in with its dip); from the end of that peak on, the
 seated coil's RL model (the motional EMF of the armature opening in the release is left
-out).
+out). On a full bridge the pull-in runs on the bridge's drive path (Q1 + Q4), the seated
+hold on its slow decay and the release on its fast decay, as without an armature.
 
 With a boosted peak (``[supply] boost``) the driver's boost switch (its ``port_boost``
 hook) puts the boost capacitor on the coil: while it is on, the current is the series RLC
@@ -215,9 +216,6 @@ class FirmwareDevice(LineOutput):
         """``ValueError`` for a design the loop cannot run yet (see the module docstring)."""
         if design.hold.current_mode is not None:
             raise ValueError("firmware in the loop runs a voltage-mode (fixed duty or supply table) hold for now")
-        if design.drive.armature is not None and design.drive.switch.topology == "full_bridge":
-            raise ValueError("firmware in the loop does not run a moving [armature] on a full bridge: "
-                             "emulate it without --firmware (the model's device)")
 
     def _pull_in_flight(self, faulty, design, l_scale):
         """With an armature (not stuck): ``(time, current)`` of the pull-in with the switch

@@ -24,7 +24,7 @@ from __future__ import annotations
 import ctypes
 from pathlib import Path
 
-from .device import DeviceOptions, LogEntry, _Item
+from .device import DeviceOptions, _Item
 from .latch_device import PULSE_CODE, LatchDevice
 from .messages import EventKind, Opcode, ReplyStatus
 
@@ -163,8 +163,9 @@ class LatchFirmwareDevice(LatchDevice):
         self._advance(now)
         self._auto = False
         self._stop(now)
-        self._drive_until(now + 1.0 / self.tick_rate)
-        self._log.append(LogEntry(now, "driver stopped"))
+        t = now + 1.0 / self.tick_rate      # the driver's next tick opens the switches
+        self._drive_until(t)
+        self._run(t)
 
 
 __all__ = ["LatchFirmwareDevice", "COMMANDS", "load_latch_library"]

@@ -164,7 +164,8 @@ def _latch_device(path: Path, drv, options, firmware: Optional[Path], fault: Opt
             from None
     status(f"latching coil: set pulse {device.pulse_time('set') * 1e3:.4g} ms, reset pulse "
            f"{device.pulse_time('reset') * 1e3:.4g} ms, one every {device.period:.4g} s (the design's "
-           f"shortest safe interval {device.interval:.4g} s)")
+           f"shortest safe interval {device.interval:.4g} s)"
+           + (f"; the driver in {firmware} times them" if firmware is not None else ""))
     return device
 
 

@@ -227,13 +227,14 @@ def render_driver(design: Design, prefix: str = "coil") -> dict[str, str]:
 #: figure exceeds its bound or falls 10 % below it. ``adc_isr_closed_loop`` is the ADC
 #: handler of a closed-loop hold (the PI step's 32-bit multiplies through the libgcc
 #: routines of an 8-bit core), over the closed-loop example's script; ``adc_isr_bridge`` is
-#: a full bridge's (the phase masks set at each switch-on), over the bridge example's;
+#: a full bridge's (the phase masks set at each switch-on), over the bridge example's and
+#: the same with a moving armature (its dip detector: the worst);
 #: ``adc_isr_boost`` a boosted peak's (the threshold, the boost switch and the ON and
 #: PEAK_END events sent from the handler), over the boost example's with its time-out;
 #: ``adc_isr_mixed`` a mixed-decay bridge's (the fast part's end, a 32-bit multiply, with
 #: each new compare), over the bridge example with ``fast_fraction = 0.3``.
 HANDLER_CYCLES = {"adc_isr": 340, "pwm_isr": 11, "tick": 692, "threshold_isr": 137,
-                  "adc_isr_closed_loop": 602, "adc_isr_bridge": 346, "adc_isr_boost": 404, "adc_isr_mixed": 452}
+                  "adc_isr_closed_loop": 602, "adc_isr_bridge": 371, "adc_isr_boost": 404, "adc_isr_mixed": 452}
 #: Worst-case cycle bounds of each handler on Cortex-M cores, over the same drive shapes
 #: and script (tests/test_driver_qemu.py): arm-none-eabi-gcc 12.2 -Os builds run under
 #: QEMU 7.2 (mps2-an385: Cortex-M3, and the ARMv6-M code of the M0+; mps2-an386:
@@ -245,24 +246,24 @@ HANDLER_CYCLES = {"adc_isr": 340, "pwm_isr": 11, "tick": 692, "threshold_isr": 1
 #: figure exceeds its bound or all fall 10 % below it.
 CORTEX_CYCLES = {
     "cortex-m0plus": {"adc_isr": 324, "pwm_isr": 13, "tick": 525, "threshold_isr": 121,
-                      "adc_isr_closed_loop": 310, "adc_isr_bridge": 324, "adc_isr_boost": 362,
+                      "adc_isr_closed_loop": 310, "adc_isr_bridge": 349, "adc_isr_boost": 362,
                       "adc_isr_mixed": 368},
     "cortex-m3": {"adc_isr": 305, "pwm_isr": 8, "tick": 509, "threshold_isr": 102,
-                  "adc_isr_closed_loop": 308, "adc_isr_bridge": 306, "adc_isr_boost": 327,
+                  "adc_isr_closed_loop": 308, "adc_isr_bridge": 328, "adc_isr_boost": 327,
                   "adc_isr_mixed": 346},
     "cortex-m4": {"adc_isr": 305, "pwm_isr": 8, "tick": 509, "threshold_isr": 102,
-                  "adc_isr_closed_loop": 308, "adc_isr_bridge": 306, "adc_isr_boost": 327,
+                  "adc_isr_closed_loop": 308, "adc_isr_bridge": 327, "adc_isr_boost": 327,
                   "adc_isr_mixed": 346},
 }
 CORTEX_INSTRUCTIONS = {
     "cortex-m0plus": {"adc_isr": 176, "pwm_isr": 4, "tick": 373, "threshold_isr": 63,
-                      "adc_isr_closed_loop": 165, "adc_isr_bridge": 176, "adc_isr_boost": 194,
+                      "adc_isr_closed_loop": 165, "adc_isr_bridge": 195, "adc_isr_boost": 194,
                       "adc_isr_mixed": 203},
     "cortex-m3": {"adc_isr": 147, "pwm_isr": 2, "tick": 305, "threshold_isr": 53,
-                  "adc_isr_closed_loop": 148, "adc_isr_bridge": 148, "adc_isr_boost": 159,
+                  "adc_isr_closed_loop": 148, "adc_isr_bridge": 160, "adc_isr_boost": 159,
                   "adc_isr_mixed": 170},
     "cortex-m4": {"adc_isr": 147, "pwm_isr": 2, "tick": 305, "threshold_isr": 53,
-                  "adc_isr_closed_loop": 148, "adc_isr_bridge": 148, "adc_isr_boost": 159,
+                  "adc_isr_closed_loop": 148, "adc_isr_bridge": 159, "adc_isr_boost": 159,
                   "adc_isr_mixed": 170},
 }
 #: How each core's figures were had, for the printed timing line.
@@ -275,9 +276,10 @@ _CYCLE_SOURCES = {
 #: The driver's static state (bytes): the largest .bss over those shapes, from
 #: avr-gcc 5.4 (ATmega328P) and arm-none-eabi-gcc 12.2 (Cortex-M0+ and M4 alike).
 _STATE_BYTES = {"avr": 42, "arm": 47}
-#: Code bytes at -Os: the largest .text over those shapes, rounded up to 50 bytes
+#: Code bytes at -Os: the largest .text over those shapes (the AVR's: the bridge with a moving
+#: armature, 1,654 B), rounded up to 50 bytes
 #: (Cortex-M0+, larger than the M4 build).
-_CODE_BYTES = {"avr": 1650, "arm": 1300}
+_CODE_BYTES = {"avr": 1700, "arm": 1300}
 #: The same for a closed-loop hold's driver (the PI step in place of the table lookup;
 #: its own bound so that the other holds' figures stay as measured).
 _CLOSED_LOOP_CODE_BYTES = {"avr": 1650, "arm": 1150}
