@@ -426,7 +426,7 @@ class FirmwareDevice(LineOutput):
         if self._mixed and bypass:
             fast_t = max(on_end, t0 + T * min(self._fast_end, self.period_counts) / self.period_counts)
 
-        def off_current(x, i_end):
+        def decay_part(x, i_end):
             """The off-time's current at ``x`` s from ``i_end`` A at the on-time's end."""
             lp = self._loops["hold" if bypass else "release"]
             if fast_t is None:
@@ -441,10 +441,10 @@ class FirmwareDevice(LineOutput):
             x = np.asarray(x, float)
             i_on = on_current(np.minimum(x, on_end))
             i_end = on_current(on_end)
-            i_off = off_current(x, i_end)
+            i_off = decay_part(x, i_end)
             if cut:
                 fast = self._loops["release"]
-                i_cut = off_current(np.asarray(cut[0]), i_end)
+                i_cut = decay_part(np.asarray(cut[0]), i_end)
                 i_off = np.where(x > cut[0], decay_current(x - cut[0], i_cut, fast.r_off, fast.v_off,
                                                            fast.inductance), i_off)
             i = np.where(x <= on_end, i_on, i_off)
