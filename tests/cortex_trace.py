@@ -147,10 +147,10 @@ class Timing:
     lines: list[str]
 
 
-def build(folder: Path, d, script, core: str) -> Path:
+def build(folder: Path, d, script, core: str, writer=write_sources) -> Path:
     gcc = require_tool("arm-none-eabi-gcc")
     cpu, _ = CORES[core]
-    sources = write_sources(folder, d, script)
+    sources = writer(folder, d, script)
     flags = [f"-mcpu={cpu}", "-mthumb", "-Os"]
     objs = []
     for src in sources:
@@ -168,11 +168,13 @@ def build(folder: Path, d, script, core: str) -> Path:
     return elf
 
 
-def run(folder: Path, d, script, core: str) -> Timing:
-    """Build the program for ``core``, run it under QEMU with the execution trace, and
-    return the worst instructions and cycle bound of each handler, and the printed lines."""
+def run(folder: Path, d, script, core: str, writer=write_sources) -> Timing:
+    """Build the program for ``core`` (its sources from ``writer``: the peak-and-hold
+    driver's scripted program, or the latching coil's), run it under QEMU with the
+    execution trace, and return the worst instructions and cycle bound of each handler,
+    and the printed lines."""
     qemu = require_tool("qemu-system-arm")
-    elf = build(folder, d, script, core)
+    elf = build(folder, d, script, core, writer)
     trace = folder / f"{core}.trace"
     r = subprocess.run([qemu, "-M", CORES[core][1], "-nographic", "-monitor", "none", "-serial", "none",
                         "-semihosting-config", "enable=on,target=native", "-singlestep",

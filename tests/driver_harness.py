@@ -95,9 +95,25 @@ def write_sources(folder: Path, d, script: list[tuple[str, int]]) -> list[str]:
     return [str(PROGRAM), str(folder / "coil_driver.c")]
 
 
-def run_host(folder: Path, d, script: list[tuple[str, int]], flags: tuple[str, ...] = ()) -> Run:
+LATCH_PROGRAM = ROOT / "tests" / "data" / "latch_target.c"
+LATCH_OPS = {"set": 1, "reset": 2, "stop": 3, "run": 4}
+
+
+def write_latch_sources(folder: Path, d, script: list[tuple[str, int]]) -> list[str]:
+    """The latching coil's driver (a LatchDesign ``d``) and tests/data/latch_target.c's
+    scenario: set, reset, stop, run <ticks>."""
+    from coildrive.codegen.latch_driver import render_latch_driver
+    for name, text in render_latch_driver(d, "coil").items():
+        (folder / name).write_text(text)
+    rows = ",\n".join(f"    {{{LATCH_OPS[op]}UL, {arg}UL}}" for op, arg in script)
+    (folder / "scenario.h").write_text(f"#include <stdint.h>\nstatic const uint32_t scenario[][2] = {{\n{rows}\n}};\n")
+    return [str(LATCH_PROGRAM), str(folder / "coil_driver.c")]
+
+
+def run_host(folder: Path, d, script: list[tuple[str, int]], flags: tuple[str, ...] = (),
+             writer=write_sources) -> Run:
     gcc = require_tool("gcc")
-    sources = write_sources(folder, d, script)
+    sources = writer(folder, d, script)
     exe = folder / "host"
     build = subprocess.run([gcc, *STRICT, "-O2", *flags, "-I", str(folder), *sources, "-o", str(exe)],
                            capture_output=True, text=True, timeout=120)
@@ -115,9 +131,10 @@ def uart_lines(stderr: str) -> list[str]:
     return "".join(text).splitlines()
 
 
-def run_avr(folder: Path, d, script: list[tuple[str, int]], flags: tuple[str, ...] = ()) -> Run:
+def run_avr(folder: Path, d, script: list[tuple[str, int]], flags: tuple[str, ...] = (),
+            writer=write_sources) -> Run:
     avr_gcc, simavr = require_tool("avr-gcc"), require_tool("simavr")
-    sources = write_sources(folder, d, script)
+    sources = writer(folder, d, script)
     elf = folder / "prog.elf"
     build = subprocess.run([avr_gcc, "-mmcu=atmega328p", "-Os", *STRICT, *flags, "-I", str(folder), *sources,
                             "-o", str(elf)], capture_output=True, text=True, timeout=120)
@@ -161,12 +178,18 @@ def budget_script(d) -> list[tuple[str, int]]:
 
 
 #: Drive shapes whose handlers the budget covers: every bundled example (the closed-loop
-#: one included), and the demo with each current-mode control.
+#: one included), the bridge example with a moving armature and with a mixed-decay hold,
+#: and the demo with each current-mode control.
 def budget_shapes() -> list[tuple[str, object]]:
     shapes = [(name, example_design(name)) for name in
               ("demo-valve", "door-latch-24v", "locker-latch-12v", "pinch-valve-48v", "relay-12v",
                "wash-valve-split-24v", "dosing-valve-closed-loop", "dosing-valve-bridge-24v",
                "fuel-valve-boost-12v")]
+    from test_bridge_armature import ARMATURE
+    shapes.append(("dosing-valve-bridge-24v armature", example_design(
+        "dosing-valve-bridge-24v", ('[release]\ncurrent = "0.08 A"', ARMATURE + '\n[release]\ncurrent = "0.12 A"'))))
+    shapes.append(("dosing-valve-bridge-24v mixed", example_design(
+        "dosing-valve-bridge-24v", ("[hold]\n", "[hold]\nfast_fraction = 0.3\n"))))
     for control in ("hysteretic", "off_time"):
         shapes.append((f"demo-valve {control}", example_design(
             "demo-valve", ('frequency = "25 kHz"', f'frequency = "25 kHz"\nmode = "current"\ncontrol = "{control}"'))))

@@ -94,19 +94,76 @@ def test_driver_sets_the_phase_masks_around_every_switch_edge(tmp_path):
         assert lines[k + 1][0] == "g" and int(lines[k + 1][3]) == 0, lines[k + 1]
 
 
-def test_driver_refuses_mixed_decay_and_writes_nothing(tmp_path):
-    # the driver's bridge decays slowly in every off-time: a hold designed with a fast part
-    # needs a higher duty than it would hold at, so firmware-driver refuses it in one line
-    from conftest import run_cli
+MIXED = ("[hold]\n", "[hold]\nfast_fraction = 0.3\n")
 
-    text = (EXAMPLES / "dosing-valve-bridge-24v.toml").read_text()
-    assert "[hold]\n" in text
+
+@pytest.mark.compiler
+def test_mixed_decay_fast_end_is_the_headers_for_every_compare(tmp_path):
+    # gcc -Wall -Wextra -Werror -pedantic -Wconversion builds the mixed-decay driver with
+    # the scripted program (tests/data/driver_target.c): with every compare it gives the
+    # count where the off-time's fast part ends, compare + ((PERIOD - compare) x
+    # HOLD_FAST_Q16 + 32768) >> 16 with HOLD_FAST_Q16 read from the header's text, which is
+    # the design's fraction of the off-time to within half a count
+    from driver_harness import example_design, run_host
+
+    d = example_design("dosing-valve-bridge-24v", MIXED)
+    codes = [d.adc.supply_min_code + k * (d.adc.supply_max_code - d.adc.supply_min_code) // 6 for k in range(7)]
+    script = [("supply", codes[0]), ("full", 2 * d.adc.pull_in_code), ("run", 2), ("on", 0),
+              ("run", d.pull_in.peak_ticks + 2)]
+    for c in codes:
+        script += [("supply", c), ("run", 2)]
+    run = run_host(tmp_path, d, script)
+    defines = _defines((tmp_path / "coil_drive.h").read_text())
+    q16, period = defines["COIL_HOLD_FAST_Q16"], defines["COIL_TIMER_PERIOD_COUNTS"]
+    assert q16 == round(0.3 * 65536)
+    calls = [(ln.split()[0], int(ln.split()[3])) for ln in run.lines if ln[:2] in ("p ", "f ")]
+    assert calls[0] == ("p", 0)      # init: compare 0 with the switch off, no off-time to split
+    calls = calls[1:]
+    pairs = [(c, calls[k + 1]) for k, (kind, c) in enumerate(calls) if kind == "p"]
+    hold = {c for c, _ in pairs if c < period}
+    assert len(hold) >= 3, f"the table gives several hold compares: {sorted(hold)}"
+    for compare, (kind, end) in pairs:
+        assert kind == "f", "the fast end follows every compare"
+        assert end == compare + (((period - compare) * q16 + 32768) >> 16), (compare, end)
+        assert abs(end - compare - 0.3 * (period - compare)) <= 0.5 + (period - compare) / 65536, (compare, end)
+
+
+@pytest.mark.compiler
+def test_mixed_decay_in_the_loop_passes_check_and_slow_decay_would_not(tmp_path):
+    # The compiled mixed-decay driver in the loop (in process): its fast-end count reaches
+    # the coil model, which decays fast up to it and slowly after; `check` passes the hold
+    # (the design's mixed-decay mean). The same run with the model's off-times all slow
+    # holds far higher and fails: the fast part is what the driver must switch.
+    import json
+
+    from conftest import run_cli
+    from coildrive.bench.device import DeviceOptions
+    from coildrive.bench.firmware_device import FirmwareDevice
+    from coildrive.codegen.driver import render_driver
+    from coildrive.codegen.host_build import build_firmware
+    from test_emulator_device import capture_of, run as run_device
+
+    require_tool("gcc")
     drive = tmp_path / "mixed.toml"
-    drive.write_text(text.replace("[hold]\n", "[hold]\nfast_fraction = 0.3\n", 1))
-    r = run_cli("firmware-driver", str(drive), "--board", "bridge-m32-fast", "--out", str(tmp_path / "out"))
-    assert r.returncode == 2 and "hold.fast_fraction" in r.stderr and "Traceback" not in r.stderr
-    assert len(r.stderr.strip().splitlines()) == 1
-    assert not (tmp_path / "out").exists()
+    drive.write_text(BRIDGE.read_text().replace(*MIXED, 1))
+    d = design(load_drive(drive))
+    (tmp_path / "fw").mkdir()
+    for name, text in render_driver(d).items():
+        (tmp_path / "fw" / name).write_text(text)
+    lib = build_firmware(tmp_path / "fw", d, cache=tmp_path / "cache")
+    rows = {}
+    for mixed in (True, False):
+        dev = FirmwareDevice(d, lib, DeviceOptions(supply=24.0, coil_temp=20.0, noise_codes=1, seed=3,
+                                                   hold_time=0.03))
+        dev._mixed = mixed
+        dev._now = 0.0
+        msgs, _ = run_device(dev, 2.3 * dev.period, step=0.01)
+        capture_of(msgs, tmp_path / f"{mixed}.cdcap")
+        r = run_cli("check", str(tmp_path / f"{mixed}.cdcap"), str(drive), "--json")
+        rows[mixed] = {i["name"]: i for i in json.loads(r.stdout)["items"]}
+        assert r.returncode == (0 if mixed else 1), {k: (i["status"], i["detail"]) for k, i in rows[mixed].items()}
+    assert rows[True]["hold_mean"]["status"] == "pass" and rows[False]["hold_mean"]["status"] == "FAIL"
+    assert rows[False]["hold_mean"]["measured"] > 1.3 * rows[True]["hold_mean"]["measured"]
 
 
 @pytest.fixture(scope="module")
@@ -186,3 +243,24 @@ def test_firmware_in_the_loop_passes_check_with_the_fast_release(tmp_path, firmw
     t_slow = float(decay_time(drive.release.current, i_top, slow.r_off, slow.v_off, slow.inductance))
     assert rel["status"] == "pass" and rel["measured"] < 0.3 * t_slow, (rel, t_slow)
     assert rel["predicted"] < 0.3 * t_slow, (rel, t_slow)
+
+
+@pytest.mark.slow
+def test_mixed_decay_emulate_firmware_capture_check_over_a_real_pty(tmp_path, monkeypatch):
+    # firmware-driver -> emulate --firmware -> capture -> check, each a real subprocess
+    import json
+
+    from conftest import run_cli
+    from test_firmware_loop import capture
+
+    require_tool("gcc")
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "cache"))
+    drive = tmp_path / "mixed.toml"
+    drive.write_text(BRIDGE.read_text().replace(*MIXED, 1))
+    r = run_cli("firmware-driver", str(drive), "--out", str(tmp_path / "fw"))
+    assert r.returncode == 0, r.stderr
+    out, _ = capture(tmp_path, tmp_path / "fw", "mixed", drive=drive)
+    r = run_cli("check", str(out), str(drive), "--json")
+    items = {i["name"]: i for i in json.loads(r.stdout)["items"]}
+    assert r.returncode == 0, {k: (i["status"], i["detail"]) for k, i in items.items()}
+    assert items["hold_mean"]["status"] == "pass"

@@ -28,7 +28,8 @@ settings built in). Until the first command the device actuates by itself.
 With an ``[armature]`` the current while the switch is held fully on from rest is the
 design's armature model (the pull-in with its dip); from the end of that peak on, the
 seated coil's RL model (the motional EMF of the armature opening in the release is left
-out).
+out). On a full bridge the pull-in runs on the bridge's drive path (Q1 + Q4), the seated
+hold on its slow decay and the release on its fast decay, as without an armature.
 
 With a boosted peak (``[supply] boost``) the driver's boost switch (its ``port_boost``
 hook) puts the boost capacitor on the coil: while it is on, the current is the series RLC
@@ -37,7 +38,11 @@ the capacitor's voltage at its switch-on; from the conversion that turns it off,
 main supply's RL rise. The capacitor starts charged to the boost's nominal voltage and
 between peaks recharges at ``boost_power`` (:func:`coildrive.model.boost.recharge_voltage`);
 the main supply's diode taking over below the bus is left out (the design's
-``boost_droop`` check keeps the capacitor above it). Current-mode holds are not run in the loop yet (the comparator would have to be
+``boost_droop`` check keeps the capacitor above it).
+
+A full bridge's mixed-decay hold (``hold.fast_fraction``): each off-time decays through
+the fast path (all four open) up to the timer count the driver gives through its
+``port_fast_end`` hook, then through the slow path. Current-mode holds are not run in the loop yet (the comparator would have to be
 stepped with the coil).
 """
 
@@ -77,7 +82,8 @@ def load_library(path: Path) -> ctypes.CDLL:
                             ("fil_push_block", size, [ctypes.POINTER(u16), size]),
                             ("fil_poll", size, []), ("fil_flush", size, []),
                             ("fil_take", size, [ctypes.POINTER(u8), size]), ("fil_outputs", u32, []),
-                            ("fil_state", u8, []), ("fil_bridge", u8, []), ("fil_fault", u8, []), ("fil_lost", u32, []),
+                            ("fil_state", u8, []), ("fil_bridge", u8, []), ("fil_fast_end", u32, []),
+                            ("fil_fault", u8, []), ("fil_lost", u32, []),
                             ("fil_receive", ctypes.c_int, [u8]), ("fil_command_opcode", u8, []),
                             ("fil_command_argument", u32, []),
                             ("fil_reply", None, [u8, u32, ctypes.c_char_p])):
@@ -160,6 +166,11 @@ class FirmwareDevice(LineOutput):
         self._clear_lead = (design.release.lockout_ticks + 2) / self.tick_rate
         #: a full bridge's switch masks (drive, slow decay, fast decay) of the design
         self._bridge = None
+        #: a mixed-decay hold: the timer count where the off-time's fast part ends, as the
+        #: driver set it for the next period (port_fast_end)
+        self._mixed = design.topology is not None and design.topology.bridge is not None \
+            and design.topology.bridge.hold_decay == "mixed"
+        self._fast_end = 0
         if design.topology is not None and design.topology.bridge is not None:
             from ..model.bridge import switch_mask
             on = design.topology.bridge.switches_on
@@ -205,9 +216,6 @@ class FirmwareDevice(LineOutput):
         """``ValueError`` for a design the loop cannot run yet (see the module docstring)."""
         if design.hold.current_mode is not None:
             raise ValueError("firmware in the loop runs a voltage-mode (fixed duty or supply table) hold for now")
-        if design.drive.armature is not None and design.drive.switch.topology == "full_bridge":
-            raise ValueError("firmware in the loop does not run a moving [armature] on a full bridge: "
-                             "emulate it without --firmware (the model's device)")
         if design.drive.armature is not None and design.drive.supply.droops:
             raise ValueError("firmware in the loop does not run a moving [armature] on a drooping bus "
                              "(supply.source_resistance) yet: emulate it without --firmware (the model's device)")
@@ -418,16 +426,31 @@ class FirmwareDevice(LineOutput):
         #: a full bridge's slow decay that the driver ends at the conversion (all four open):
         #: the time it does, s, from which the current decays fast
         cut: list[float] = []
+        #: a mixed-decay hold's off-time: fast (all four open) from the on-time's end to
+        #: fast_t s, then slow (the design's hold loop)
+        fast_t = None
+        if self._mixed and bypass:
+            fast_t = max(on_end, t0 + T * min(self._fast_end, self.period_counts) / self.period_counts)
+
+        def decay_part(x, i_end):
+            """The off-time's current at ``x`` s from ``i_end`` A at the on-time's end."""
+            lp = self._loops["hold" if bypass else "release"]
+            if fast_t is None:
+                return decay_current(x - on_end, i_end, lp.r_off, lp.v_off, lp.inductance)
+            fast = self._loops["release"]
+            i_fast = decay_current(np.minimum(x, fast_t) - on_end, i_end, fast.r_off, fast.v_off, fast.inductance)
+            i_slow = decay_current(np.maximum(x - fast_t, 0.0), i_fast, lp.r_off, lp.v_off,
+                                   lp.inductance)
+            return np.where(x <= fast_t, i_fast, i_slow)
 
         def current(x):
             x = np.asarray(x, float)
-            lp = self._loops["hold" if bypass else "release"]
             i_on = on_current(np.minimum(x, on_end))
             i_end = on_current(on_end)
-            i_off = decay_current(x - on_end, i_end, lp.r_off, lp.v_off, lp.inductance)
+            i_off = decay_part(x, i_end)
             if cut:
                 fast = self._loops["release"]
-                i_cut = decay_current(cut[0] - on_end, i_end, lp.r_off, lp.v_off, lp.inductance)
+                i_cut = decay_part(np.asarray(cut[0]), i_end)
                 i_off = np.where(x > cut[0], decay_current(x - cut[0], i_cut, fast.r_off, fast.v_off,
                                                            fast.inductance), i_off)
             i = np.where(x <= on_end, i_on, i_off)
@@ -468,6 +491,8 @@ class FirmwareDevice(LineOutput):
                 return np.where(x < s, off_current(x),
                                 boost_model.state(np.maximum(x - s, 0.0), late[2], late[1])[0])
         self._outputs = new
+        if self._mixed:
+            self._fast_end = int(self.lib.fil_fast_end())   # the next period's
         self._run_samples(s, t0 + T, sensed)
         for tt in [x for x in ticks if x >= s]:
             self._do_tick(tt)

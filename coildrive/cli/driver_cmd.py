@@ -37,7 +37,8 @@ def firmware_driver(
     board: Optional[str] = typer.Option(None, "--board", "-b", help="Bundled board name or board file; overrides the drive file's board."),
     prefix: str = typer.Option("coil", "--prefix", help="C name prefix: coil gives coil_tick(), COIL_PEAK_TICKS."),
 ) -> None:
-    """Write the reference peak-and-hold driver in C for DRIVE, with its design header.
+    """Write the reference peak-and-hold driver in C for DRIVE, with its design header
+    (for a latching coil, ``[hold] mode = "latch"``, its set-and-reset pulse driver).
 
     Prints the RAM and flash it takes and each handler's share of its period at the
     board's clock; warns above 50 % and refuses (exit 2, nothing written) above 100 %.
@@ -49,12 +50,19 @@ def firmware_driver(
 
     check_prefix(prefix)
     loaded = load_drive(drive, board)
-    result = design(loaded)
+    if loaded.latch is not None:      # a latching coil: its set and reset pulses
+        from ..codegen.latch_driver import latch_budget_notes, render_latch_driver
+        from ..design.latch import design_latch
+        result = design_latch(loaded)
+    else:
+        result = design(loaded)
     if not result.ok:
         status(f"driver not written: the design fails {', '.join(c.name for c in result.failed)}")
         raise typer.Exit(1)
-    files = render_driver(result, prefix)
-    notes = budget_notes(result, prefix)
+    if loaded.latch is not None:
+        files, notes = render_latch_driver(result, prefix), latch_budget_notes(result)
+    else:
+        files, notes = render_driver(result, prefix), budget_notes(result, prefix)
     write_folder(out_dir, files)
     for note in notes:
         status(note)

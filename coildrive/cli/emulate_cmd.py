@@ -152,13 +152,17 @@ def _latch_device(path: Path, drv, options, firmware: Optional[Path], fault: Opt
     from ..bench.latch_device import LatchDevice
     from ..design.latch import design_latch
 
-    for option, given in (("--firmware", firmware is not None), ("--fault", fault is not None)):
-        if given:
-            raise InputError(option, "", "a latching coil's virtual device runs the design's pulses "
-                             "(no generated driver, no fault to put in): leave it out")
+    if fault is not None:
+        raise InputError("--fault", "", "a latching coil's virtual device has no fault to put in: leave it out")
     d = design_latch(drv)
     try:
-        device = LatchDevice(d, options)
+        if firmware is not None:   # the generated latch driver times and switches the pulses
+            from ..bench.latch_firmware_device import LatchFirmwareDevice
+            from ..codegen.host_build import build_latch_firmware
+            from ..codegen.latch_driver import pulse_switches
+            device = LatchFirmwareDevice(d, build_latch_firmware(firmware, d), pulse_switches(d), options)
+        else:
+            device = LatchDevice(d, options)
     except OptionError as err:
         raise InputError(_OPTION.get(err.name, err.name), "", err.message) from None
     except ValueError as err:
@@ -166,7 +170,8 @@ def _latch_device(path: Path, drv, options, firmware: Optional[Path], fault: Opt
             from None
     status(f"latching coil: set pulse {device.pulse_time('set') * 1e3:.4g} ms, reset pulse "
            f"{device.pulse_time('reset') * 1e3:.4g} ms, one every {device.period:.4g} s (the design's "
-           f"shortest safe interval {device.interval:.4g} s)")
+           f"shortest safe interval {device.interval:.4g} s)"
+           + (f"; the driver in {firmware} times them" if firmware is not None else ""))
     return device
 
 

@@ -20,8 +20,7 @@ from pathlib import Path
 from ..design.result import Design
 from ..errors import InputError
 from ..fileio import write_atomic
-from ..resources import data_dir
-from .driver import DriverView
+from .driver import DriverView, template_env
 from .stream import render_stream_encoder
 
 #: Compilers tried in this order after ``$CC``.
@@ -77,27 +76,63 @@ def build_firmware(folder: Path, design: Design, cache: Path | None = None) -> P
     InputError
         naming ``--firmware`` (no compiler, a build error) or the folder.
     """
-    import jinja2
-
     prefix = driver_prefix(Path(folder))
     view = DriverView(design, prefix)
-    env = jinja2.Environment(loader=jinja2.FileSystemLoader(str(data_dir("codegen_templates") / "driver")),
-                             undefined=jinja2.StrictUndefined, keep_trailing_newline=True,
-                             trim_blocks=True, lstrip_blocks=True, autoescape=False)
+    env = template_env()
     generated = {f"{view.lower}_host_port.c": env.get_template("host_shim.c.j2").render(v=view, d=design)}
     own_stream = (Path(folder) / f"{view.lower}_stream.c").is_file()
     if not own_stream:
         generated.update(render_stream_encoder(view.lower, blocks=STREAM_BLOCKS, board=design.drive.board))
     sources = {p.name: p.read_text() for p in sorted(Path(folder).glob(f"{prefix}_*.[ch]"))}
+    if f"#define {view.macro}_LATCH " in sources.get(f"{prefix}_drive.h", ""):
+        raise InputError(str(folder), "", "has a latching coil's driver, this drive is not a latching coil "
+                         "([hold] mode \"latch\"): run firmware-driver for this drive")
     boosted = f"#define {view.macro}_BOOST_PEAK " in sources.get(f"{prefix}_drive.h", "")
     if boosted != view.boost:   # the coil model switches the boost on the driver's word
         raise InputError(str(folder), "", "has a driver generated for a drive " + ("with" if boosted else "without")
                          + " supply.boost, this drive has " + ("none" if boosted else "one")
                          + ": run firmware-driver for this drive")
-    compiler = find_compiler()
-    flags = ["-std=c99", "-O2", "-shared", "-fPIC", f"-D{view.macro}_STREAM_SINGLE_CONTEXT"]
+    flags = [f"-D{view.macro}_STREAM_SINGLE_CONTEXT"]
     if view.armature:
         flags.append(f"-D{view.macro}_DRIVER_SEAT_END=0")      # check predicts the designed peak
+    units = [f"{prefix}_driver.c", f"{view.lower}_host_port.c", f"{view.lower}_stream.c"]
+    return _compile(Path(folder), sources, generated, units, flags, cache,
+                    own={f"{prefix}_driver.c"} | ({f"{view.lower}_stream.c"} if own_stream else set()))
+
+
+def build_latch_firmware(folder: Path, design, cache: Path | None = None) -> Path:
+    """Compile the latching coil's driver in ``folder`` (``firmware-driver`` of a
+    ``[hold] mode = "latch"`` drive; ``design`` its
+    :class:`~coildrive.design.latch.LatchDesign`) with its host port
+    (``codegen_templates/driver/latch_host_shim.c.j2``); return the shared library's path.
+    The emulator streams the samples and the driver's events itself (no encoder built).
+
+    Raises
+    ------
+    InputError
+        naming ``--firmware`` (no compiler, a build error) or the folder (a driver
+        generated for a drive that is not a latching coil).
+    """
+    from .latch_driver import LatchDriverView
+
+    prefix = driver_prefix(Path(folder))
+    view = LatchDriverView(design, prefix)
+    sources = {p.name: p.read_text() for p in sorted(Path(folder).glob(f"{prefix}_*.[ch]"))}
+    if f"#define {view.macro}_LATCH " not in sources.get(f"{prefix}_drive.h", ""):
+        raise InputError(str(folder), "", "has a driver generated for a drive that is not a latching coil, "
+                         "this drive's [hold] mode is \"latch\": run firmware-driver for this drive")
+    generated = {f"{view.lower}_host_port.c": template_env().get_template("latch_host_shim.c.j2")
+                 .render(v=view, d=design)}
+    return _compile(Path(folder), sources, generated, [f"{prefix}_driver.c", f"{view.lower}_host_port.c"],
+                    [], cache, own={f"{prefix}_driver.c"})
+
+
+def _compile(folder: Path, sources: dict[str, str], generated: dict[str, str], units: list[str],
+             flags: list[str], cache: Path | None, own: set[str]) -> Path:
+    """Build ``units`` (those in ``own`` from ``folder``, the rest from ``generated``) into
+    a shared library in the cache, keyed by every source, the compiler and the flags."""
+    compiler = find_compiler()
+    flags = ["-std=c99", "-O2", "-shared", "-fPIC", *flags]
     key = hashlib.sha256(repr((sorted(sources.items()), sorted(generated.items()), compiler, flags,
                                sys.platform)).encode()).hexdigest()[:20]
     out = (cache or cache_root()) / key
@@ -110,10 +145,9 @@ def build_firmware(folder: Path, design: Design, cache: Path | None = None) -> P
             write_atomic(out / name, text)
     except OSError as err:
         raise InputError(str(out), "", f"cannot write the build cache: {err.strerror}") from None
-    units = [str(Path(folder) / f"{prefix}_driver.c"), str(out / f"{view.lower}_host_port.c"),
-             str((Path(folder) if own_stream else out) / f"{view.lower}_stream.c")]
+    paths = [str((folder if name in own else out) / name) for name in units]
     tmp = out / f"{lib.name}.{os.getpid()}.tmp"
-    r = subprocess.run([compiler, *flags, "-I", str(folder), "-I", str(out), *units, "-o", str(tmp)],
+    r = subprocess.run([compiler, *flags, "-I", str(folder), "-I", str(out), *paths, "-o", str(tmp)],
                        capture_output=True, text=True, timeout=300)
     if r.returncode != 0:
         first = next((line for line in r.stderr.splitlines() if "error" in line), r.stderr.strip()[:200])

@@ -7,6 +7,7 @@
  *   b <tick> <conversion> <closed>         the bypass hook
  *   g <tick> <conversion> <masks>          a full bridge's hook: on-time mask + 16 x off-time mask
  *   k <tick> <conversion> <on>             a boosted peak's boost-switch hook
+ *   f <tick> <conversion> <counts>         a mixed-decay hold's fast-end hook
  *   x <state> <fault>                      after each scenario step
  * and the worst cycle counts of the handlers (AVR: Timer1 at clk/1; host: 0):
  *   c <name> <cycles>
@@ -38,91 +39,20 @@
 #define MODE_OPEN 1u
 #define MODE_SHORT 2u
 #define MODE_LEVEL 3u
-#define LOG 16u
+#define TARGET_LOG 16u
 #ifdef COIL_DRIVER_DIP_CODES
 #define DIP COIL_DRIVER_DIP_CODES
 #else
 #define DIP 0u
 #endif
 
-#ifdef __AVR__
-#include <avr/interrupt.h>
-#include <avr/io.h>
-#include <avr/sleep.h>
-static void uart_put(char c)
-{
-    while ((UCSR0A & (1u << UDRE0)) == 0u) {
-    }
-    UDR0 = (uint8_t)c;
-}
-static void start_clock(void)
-{
-    UBRR0 = 0u;
-    UCSR0B = (uint8_t)(1u << TXEN0);
-    TCCR1A = 0u;
-    TCCR1B = (uint8_t)(1u << CS10);
-}
-#define NOW() TCNT1
-static void stop(void)
-{
-    cli();
-    sleep_cpu();
-}
-#elif defined(__arm__)
-/* Bare metal on a QEMU Cortex-M machine (mps2-an385 / an386): the vector table and the
- * reset handler are in tests/data/cortex_start.c; the text goes out through Arm
- * semihosting (SYS_WRITEC, SYS_EXIT). The handlers are timed from QEMU's execution
- * trace (tests/cortex_trace.py), not from inside: NOW() reads nothing. */
-static void semihost(uint32_t op, const void *arg)
-{
-    register uint32_t r0 __asm__("r0") = op;
-    register const void *r1 __asm__("r1") = arg;
-    __asm__ volatile("bkpt 0xab" : "+r"(r0) : "r"(r1) : "memory");
-}
-static void uart_put(char c)
-{
-    semihost(0x03u, &c);
-}
-static void start_clock(void)
-{
-}
-#define NOW() 0u
-static void stop(void)
-{
-    semihost(0x18u, (const void *)0x20026UL);   /* ADP_Stopped_ApplicationExit */
-}
-#else
-#include <stdio.h>
-static void uart_put(char c)
-{
-    (void)putchar(c);
-}
-static void start_clock(void)
-{
-}
-#define NOW() 0u
-static void stop(void)
-{
-}
-#endif
+#include "target_io.h"
 
-static uint8_t log_kind[LOG];
-static int32_t log_value[LOG];
-static uint8_t log_len;
 static uint16_t now_tick, now_conv;
 static uint8_t sw, bypass;
 static uint32_t compare;
 static uint16_t current, supply, full, dip_at, level, slew = RISE_SLEW;
 static uint8_t mode;
-
-static void log_add(uint8_t kind, int32_t value)
-{
-    if (log_len < LOG) {
-        log_kind[log_len] = kind;
-        log_value[log_len] = value;
-        log_len++;
-    }
-}
 
 void coil_port_switch(uint8_t on) { sw = on; log_add('s', on); }
 void coil_port_pwm_compare(coil_compare_t counts) { compare = counts; log_add('p', (int32_t)counts); }
@@ -132,6 +62,9 @@ void coil_port_bridge(uint8_t on_time, uint8_t off_time) { log_add('g', (int32_t
 #endif
 #ifdef COIL_BOOST_PEAK
 void coil_port_boost(uint8_t on) { log_add('k', on); }
+#endif
+#ifdef COIL_HOLD_FAST_Q16
+void coil_port_fast_end(coil_compare_t counts) { log_add('f', (int32_t)counts); }
 #endif
 void coil_port_adc_start(void) { }
 coil_adc_t coil_port_read_current(void) { return (coil_adc_t)current; }
@@ -155,48 +88,9 @@ void coil_port_off_timer(uint16_t counts) { off_pending = 1u; log_add('o', (int3
 #define coil_off_timer_isr_or_none() ((void)0)
 #endif
 
-static void put_text(const char *text)
-{
-    while (*text != '\0') {
-        uart_put(*text++);
-    }
-}
-
-static void put_number(uint32_t value)
-{
-    char digits[10];
-    unsigned int n = 0u;
-    do {
-        digits[n++] = (char)('0' + value % 10u);
-        value = value / 10u;
-    } while (value != 0u);
-    while (n != 0u) {
-        uart_put(digits[--n]);
-    }
-}
-
-static void put_field(uint32_t value)
-{
-    uart_put(' ');
-    put_number(value);
-}
-
 static void drain(void)
 {
-    uint8_t k;
-    for (k = 0u; k < log_len; k++) {
-        uart_put((char)log_kind[k]);
-        put_field(now_tick);
-        put_field(now_conv);
-        if (log_kind[k] == 'e') {
-            put_field((uint32_t)log_value[k] >> 8);
-            put_field((uint32_t)log_value[k] & 0xFFu);
-        } else {
-            put_field((uint32_t)log_value[k]);
-        }
-        uart_put('\n');
-    }
-    log_len = 0u;
+    drain_log(now_tick, &now_conv);
 }
 
 /* The coil: the current of the next conversion, from the switch as it is now. */

@@ -15,43 +15,7 @@
 #define POLL_EVERY 16u
 #define SINK 400u
 
-#ifdef __AVR__
-#include <avr/interrupt.h>
-#include <avr/io.h>
-#include <avr/sleep.h>
-static void uart_put(char c)
-{
-    while ((UCSR0A & (1u << UDRE0)) == 0u) {
-    }
-    UDR0 = (uint8_t)c;
-}
-static void start_clock(void)
-{
-    UBRR0 = 0u;                              /* 1 Mbaud at 16 MHz: output only */
-    UCSR0B = (uint8_t)(1u << TXEN0);
-    TCCR1A = 0u;
-    TCCR1B = (uint8_t)(1u << CS10);          /* Timer1 counts CPU cycles */
-}
-#define NOW() TCNT1
-static void stop(void)
-{
-    cli();
-    sleep_cpu();                             /* simavr ends the run here */
-}
-#else
-#include <stdio.h>
-static void uart_put(char c)
-{
-    (void)putchar(c);
-}
-static void start_clock(void)
-{
-}
-#define NOW() 0u
-static void stop(void)
-{
-}
-#endif
+#include "target_io.h"   /* uart_put, start_clock, NOW (AVR: Timer1 at clk/1), stop, put_ */
 
 static uint8_t sink_bytes[SINK];
 static size_t sink_len;
@@ -67,26 +31,6 @@ static void sink(void *context, const uint8_t *bytes, size_t count)
         } else {
             sink_overflow = 1u;
         }
-    }
-}
-
-static void put_text(const char *text)
-{
-    while (*text != '\0') {
-        uart_put(*text++);
-    }
-}
-
-static void put_number(uint16_t value)
-{
-    char digits[6];
-    unsigned int n = 0u;
-    do {
-        digits[n++] = (char)('0' + value % 10u);
-        value = (uint16_t)(value / 10u);
-    } while (value != 0u);
-    while (n != 0u) {
-        uart_put(digits[--n]);
     }
 }
 
@@ -121,8 +65,7 @@ static void report(const char *name, uint16_t cycles)
 {
     put_text("c ");
     put_text(name);
-    uart_put(' ');
-    put_number(cycles);
+    put_field(cycles);
     uart_put('\n');
 }
 

@@ -1,0 +1,171 @@
+"""A latching coil's virtual bench device running the compiled latch driver (firmware in
+the loop, ``coildrive emulate --firmware`` on a ``[hold] mode = "latch"`` drive).
+
+:class:`LatchFirmwareDevice` is :class:`~coildrive.bench.latch_device.LatchDevice` (the
+same line, ADC chain, pulse physics and recordings) with the pulses' timing and polarity
+taken from the generated C driver (a shared library built by
+:func:`coildrive.codegen.host_build.build_latch_firmware`, loaded with ctypes): its tick
+handler runs at the board's tick rate; the main loop asks it for a set or a reset pulse
+(alternately, every ``period`` s, or on the host's START) and STOP calls its stop. A pulse
+starts at the tick where the driver switches its polarity's switches on (after the
+shortest interval the driver enforces) and ends where the driver opens them; its ON and
+OFF events carry the driver's values. Switches the design has no path for (a mask that is
+neither pulse's) are a ``RuntimeError``.
+
+The samples and events go out through the device's own encoder (the peak-and-hold
+driver's loop, :mod:`coildrive.bench.firmware_device`, uses the C encoder; the frames are
+the same, tests/test_stream_c.py). A pulse's recording is planned when the driver starts
+it, as long as twice its design length (the driver ends it sooner), and planned again
+at the tick the driver ends it: only samples after that tick change.
+"""
+
+from __future__ import annotations
+
+import ctypes
+from pathlib import Path
+
+from .device import DeviceOptions, _Item
+from .latch_device import PULSE_CODE, LatchDevice
+from .messages import EventKind, Opcode, ReplyStatus
+
+#: fil_command codes of the host port (codegen_templates/driver/latch_host_shim.c.j2).
+COMMANDS = {"set": 1, "reset": 2, "stop": 3}
+
+
+def load_latch_library(path: Path) -> ctypes.CDLL:
+    """Load a latch firmware library and declare its functions' C types."""
+    lib = ctypes.CDLL(str(path))
+    u8 = ctypes.c_uint8
+    for name, res, args in (("fil_init", None, []), ("fil_tick", u8, []), ("fil_command", None, [u8]),
+                            ("fil_switches", u8, []), ("fil_state", u8, []),
+                            ("fil_event_kind_at", u8, [u8]), ("fil_event_value_at", ctypes.c_int32, [u8])):
+        fn = getattr(lib, name)
+        fn.restype, fn.argtypes = res, args
+    return lib
+
+
+class LatchFirmwareDevice(LatchDevice):
+    """The latching coil's virtual board with the compiled driver (module docstring).
+
+    Parameters
+    ----------
+    design : the :class:`~coildrive.design.latch.LatchDesign` the driver was generated from.
+    library : path of the shared library (``build_latch_firmware``).
+    masks : ``{"set": mask, "reset": mask}``, the switches of each pulse
+        (:func:`coildrive.codegen.latch_driver.pulse_switches`).
+    options : :class:`~coildrive.bench.device.DeviceOptions`.
+    """
+
+    def __init__(self, design, library: Path, masks: dict[str, int], options: DeviceOptions | None = None):
+        super().__init__(design, options)
+        self.lib = load_latch_library(library)
+        self.lib.fil_init()
+        self._kind_of_mask = {m: k for k, m in masks.items()}
+        self._tick = 0                   # the next tick: at (n + 1) / tick rate
+        self._asked = False              # a set or reset asked and not yet started
+        self._on: tuple[str, float] | None = None    # the pulse the driver runs: (kind, start s)
+        self.starts: list[tuple[str, float]] = []    # every pulse's (kind, start s), for tests
+        # the driver's first pulse waits one interval from its init (at t = 0)
+        self._next_auto = max(self._next_auto, self.interval)
+
+    # ------------------------------------------------------------------ driver
+    def _tick_time(self, n: int) -> float:
+        return (n + 1) / self.tick_rate
+
+    def _driver_tick(self) -> None:
+        t = self._tick_time(self._tick)
+        self._tick += 1
+        events = int(self.lib.fil_tick())
+        if not events:
+            return
+        self._run(t)                     # the line up to this tick, then the switch change
+        mask = int(self.lib.fil_switches())
+        for k in range(events):
+            kind, value = int(self.lib.fil_event_kind_at(k)), int(self.lib.fil_event_value_at(k))
+            if kind == EventKind.ON:
+                pulse = self._kind_of_mask.get(mask)
+                if pulse is None or PULSE_CODE[pulse] != value:
+                    raise RuntimeError(f"the driver switches {mask:#x} on with an ON event of value {value}; "
+                                       f"the coil model has the set pulse on {self._mask('set'):#x} (value 0) "
+                                       f"and the reset pulse on {self._mask('reset'):#x} (value 1)")
+                self._asked = False
+                self._on = (pulse, t)
+                self.starts.append(self._on)
+                self._record(t, (pulse, 2.0 * self.pulse_time(pulse)))
+            elif kind == EventKind.OFF and self._on is not None:
+                if mask != 0:
+                    raise RuntimeError(f"the driver sends OFF with the switches {mask:#x} on")
+                pulse, start = self._on
+                self._on = None
+                self._replan(self._rec, (pulse, t - start), t)
+
+    def _mask(self, kind: str) -> int:
+        return next(m for m, k in self._kind_of_mask.items() if k == kind)
+
+    def _drive_until(self, now: float) -> None:
+        """Run the driver's ticks up to ``now`` s."""
+        while self._tick_time(self._tick) <= now:
+            if self._on is not None and self._tick_time(self._tick) - self._on[1] > 2.0 * self.pulse_time(self._on[0]):
+                raise RuntimeError(f"the driver keeps the {self._on[0]} pulse on past twice its "
+                                   f"{self.pulse_time(self._on[0]) * 1e3:.4g} ms")
+            self._driver_tick()
+
+    # ------------------------------------------------------------------ device
+    def _advance(self, now: float) -> None:
+        now = max(now, self._now)
+        while self._auto and self._next_auto <= now:
+            t = self._next_auto
+            self._drive_until(t)
+            self._run(t)
+            if self._asked or self._on is not None:
+                self.stats.automatic_skipped += 1
+            else:
+                self._queue(_Item(t, 1, self.info))
+                self._start(t)
+            self._next_auto = t + self.period
+        self._drive_until(now)
+        self._run(now)
+
+    def _start(self, now: float, hold_time: float | None = None) -> None:
+        """Ask the driver for the next pulse (set and reset alternate); it starts it at a
+        tick, when the interval allows."""
+        kind = self._next_kind
+        self._next_kind = "reset" if kind == "set" else "set"
+        self._asked = True
+        self.lib.fil_command(COMMANDS[kind])
+
+    def _stop(self, now: float) -> None:
+        """STOP: the driver opens the switches at its next tick (and drops a request)."""
+        self._asked = False
+        self.lib.fil_command(COMMANDS["stop"])
+
+    def next_due(self) -> float | None:
+        due = super().next_due()
+        if self._asked or self._on is not None:     # the tick that starts or ends a pulse
+            t = self._tick_time(self._tick)
+            due = t if due is None else min(due, t)
+        return due
+
+    def busy(self, now: float | None = None) -> bool:
+        return super().busy(now) or self._asked or self._on is not None
+
+    def _execute(self, cmd, now: float) -> tuple[int, int]:
+        op = cmd.opcode
+        if op == Opcode.START:
+            if self.busy():
+                return ReplyStatus.BUSY, 0
+            kind = self._next_kind
+            self._start(now)
+            return ReplyStatus.OK, int(round(self.pulse_time(kind) * 1e6))
+        return super()._execute(cmd, now)
+
+    def shutdown(self, now: float) -> None:
+        self._advance(now)
+        self._auto = False
+        self._stop(now)
+        t = now + 1.0 / self.tick_rate      # the driver's next tick opens the switches
+        self._drive_until(t)
+        self._run(t)
+
+
+__all__ = ["LatchFirmwareDevice", "COMMANDS", "load_latch_library"]

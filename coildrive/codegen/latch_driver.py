@@ -1,0 +1,129 @@
+"""The reference driver of a latching coil in C: a set pulse and a reset pulse, no hold.
+
+:func:`render_latch_driver` is pure (a :class:`~coildrive.design.latch.LatchDesign` in,
+``{filename: text}`` out): the latch header (as ``design --header`` writes it) plus
+``<prefix>_driver.h`` / ``.c`` from ``codegen_templates/driver/latch_driver.*.j2``. The
+driver runs each pulse for the header's SET_PULSE_TICKS / RESET_PULSE_TICKS scheduler
+ticks and starts no pulse sooner than MIN_INTERVAL_TICKS after the last one's start (a
+request waits, it is not dropped); docs/firmware.md, *A latching coil*.
+
+:func:`latch_budget_notes` says what its tick handler takes of the tick at the board's
+clock, as :func:`coildrive.codegen.driver.budget_notes` does for the peak-and-hold driver.
+"""
+
+from __future__ import annotations
+
+from ..bench.messages import EventKind
+from ..design.latch import LatchDesign
+from ..errors import InputError
+from ..model.bridge import switch_mask
+from .driver import file_names, template_env
+from .header import Constant, c_uint_type
+from .latch_header import generate_latch_header
+
+#: The switches on in each pulse. A full bridge: set = Q1 + Q4 (A to B), reset = Q3 + Q2
+#: (B to A), the bits of :data:`coildrive.model.bridge.SWITCHES` (the design header's
+#: BRIDGE_ bits); a reset winding: bit 0 the set winding's switch, bit 1 the reset's.
+BRIDGE_PULSE_SWITCHES = {"set": ("high_a", "low_b"), "reset": ("high_b", "low_a")}
+WINDING_PULSE_SWITCHES = {"set": 0x1, "reset": 0x2}
+#: The ON event's value of each pulse (docs/protocol.md, the model device's).
+PULSE_VALUE = {"set": 0, "reset": 1}
+#: Worst cycles of the latch driver's tick (every path: a request waiting for the
+#: interval, a pulse's start and end, STOP) on an ATmega328P (avr-gcc -Os, simavr, Timer1
+#: at clk/1, both latching examples), and the Cortex-M cycle bounds and instructions from
+#: QEMU's execution trace (arm-none-eabi-gcc -Os, the bridge example; the instruction
+#: costs of tests/cortex_trace.py). tests/test_latch_driver.py measures again and fails
+#: if a figure exceeds its bound or falls 10 % below it.
+LATCH_TICK_CYCLES = {"avr": 173, "cortex-m0plus": 131, "cortex-m3": 119, "cortex-m4": 119}
+LATCH_TICK_INSTRUCTIONS = {"cortex-m0plus": 70, "cortex-m3": 63, "cortex-m4": 63}
+
+
+def pulse_switches(design: LatchDesign) -> dict[str, int]:
+    """The switch mask of each pulse (``set``, ``reset``) for the design's topology."""
+    if design.latch.topology == "full_bridge":
+        return {k: switch_mask(v) for k, v in BRIDGE_PULSE_SWITCHES.items()}
+    return dict(WINDING_PULSE_SWITCHES)
+
+
+class LatchDriverView:
+    """C-facing view of a latching design for the driver templates."""
+
+    def __init__(self, design: LatchDesign, prefix: str = "coil"):
+        self.design = d = design
+        file_names(self, prefix)
+        lt = d.latch
+        missing = [p.name for p in lt.pulses if p.ticks is None]
+        source = d.drive.source or d.drive.name
+        if missing:
+            raise InputError(source, f"{'reset' if missing[0] == 'reset' else 'pull_in'}.current",
+                             f"the {missing[0]} pulse's current is never reached at the worst corner, "
+                             "expected a design that reaches it for firmware-driver")
+        if lt.interval_ticks is None:
+            raise InputError(source, "thermal.max_coil_temp", "no interval between pulses keeps the coil "
+                             "below its limit (the coil_temperature check), expected one for firmware-driver")
+        self.bridge = lt.topology == "full_bridge"
+        masks = pulse_switches(d)
+        m = self.macro
+        if self.bridge:
+            what = {"set": "Q1 + Q4, A to B", "reset": "Q3 + Q2, B to A (the other polarity)"}
+        else:
+            what = {"set": "bit 0: the set winding's switch", "reset": "bit 1: the reset winding's switch"}
+        self.constants = [
+            Constant(f"{m}_DRIVER_SET_SWITCHES", masks["set"], f"set pulse: {what['set']}"),
+            Constant(f"{m}_DRIVER_RESET_SWITCHES", masks["reset"], f"reset pulse: {what['reset']}"),
+            Constant(f"{m}_DRIVER_OFF_SWITCHES", 0,
+                     "between pulses: all open (" + ("the coil's current returns to the bus through "
+                                                     "the body diodes)" if self.bridge else
+                                                     "each winding decays through its freewheel path)")),
+            Constant(f"{m}_DRIVER_SET_VALUE", PULSE_VALUE["set"], "ON event value of the set pulse"),
+            Constant(f"{m}_DRIVER_RESET_VALUE", PULSE_VALUE["reset"], "ON event value of the reset pulse"),
+        ]
+        self.tick_type = c_uint_type(max(lt.interval_ticks, max(p.ticks for p in lt.pulses), 0x100))
+        self.event_kinds = [(k.name, int(k)) for k in (EventKind.ON, EventKind.OFF)]
+
+
+def render_latch_driver(design: LatchDesign, prefix: str = "coil") -> dict[str, str]:
+    """Render the latch header and the latching coil's reference driver.
+
+    Returns ``{"<prefix>_drive.h": ..., "<prefix>_driver.h": ..., "<prefix>_driver.c": ...}``.
+
+    Raises
+    ------
+    InputError
+        naming ``--prefix`` when it is not a C identifier, or the drive file when a pulse
+        or the interval has no design.
+    """
+    view = LatchDriverView(design, prefix)
+    env = template_env()
+    return {
+        view.drive_header: generate_latch_header(design, view.macro),
+        view.header_name: env.get_template("latch_driver.h.j2").render(v=view, d=design),
+        view.source_name: env.get_template("latch_driver.c.j2").render(v=view, d=design),
+    }
+
+
+def latch_budget_notes(design: LatchDesign) -> list[str]:
+    """The tick handler's worst cycles against the tick period at the board's timer clock
+    (taken as the CPU clock), per the board's ``core``.
+
+    Raises
+    ------
+    InputError
+        naming the board file when the tick needs more than its period.
+    """
+    board = design.drive.board
+    core = board.core if board.core in LATCH_TICK_CYCLES else "avr"
+    cycles = LATCH_TICK_CYCLES[core]
+    period = board.timer.clock / board.tick.rate
+    share = cycles / period
+    mhz = board.timer.clock / 1e6
+    where = ("an 8-bit AVR (simavr)" if core == "avr" else
+             f"a {core.replace('plus', '+').replace('cortex-m', 'Cortex-M')} (QEMU's instructions)")
+    text = f"tick {cycles:,} of {period:,.0f} cycles a tick ({100 * share:.1f} %)"
+    if share > 1.0:
+        raise InputError(board.source or board.name, "tick.rate", f"the latch driver's {text}: it cannot "
+                         "keep up; lower the tick rate or use a faster part")
+    notes = [f"timing at {mhz:.4g} MHz: {text} (worst cycles measured on {where})"]
+    if share > 0.5:
+        notes.append(f"warning: the tick takes {100 * share:.1f} % of its period, above 50 %")
+    return notes
