@@ -142,7 +142,8 @@ def test_energy_balance_of_the_pull_in():
 
 def test_design_on_the_drooping_bus(tmp_path):
     """design --json with an eddy term and an armature on the drooping bus: the lowest
-    bus's corner against solve_ivp over the longest peak the firmware runs."""
+    bus's corner against solve_ivp over the longest peak the firmware runs; simulate's
+    bus_v the same; the virtual device's capture passes check."""
     drive = Path(_drive_file(tmp_path))
     drive.write_text(drive.read_text().replace(
         "inductance_tolerance = 0.10\n", f'inductance_tolerance = 0.10\neddy_resistance = "{R_E:g} ohm"\n', 1))
@@ -165,3 +166,31 @@ def test_design_on_the_drooping_bus(tmp_path):
                     doc["pull_in"]["peak_time_s"])   # scipy solve_ivp (Radau)
     assert float(np.min(data["bus_v"])) == pytest.approx(ref["low"], abs=1e-4)
     assert np.all(np.diff(data["time_s"]) > 0)
+    # the model's virtual device: a capture that check passes (plumbing, not numbers)
+    from coildrive.bench.check import check_capture
+    from coildrive.bench.synth import synth_design_capture
+    from coildrive.design import design
+
+    des = design(load_drive(drive))
+    report = check_capture(synth_design_capture(des, actuations=1, hold_time=0.05, noise_codes=1.0, seed=5), des)
+    assert report.ok, [(i.name, i.status, i.detail) for i in report.items]
+
+
+@pytest.mark.parametrize("on", [True, False])
+def test_jacobian_matches_central_differences(on):
+    """The Rosenbrock pair's Jacobian (bus row and column with the eddy term's bus share)
+    against central differences of the right-hand side (numerical analysis' standard
+    check, step 1e-6 of each state's scale)."""
+    from coildrive.model.armature_flight import _Rhs
+
+    p = _params(*BUSES[1][1:])
+    rhs = _Rhs(p, np.array([on]), np.array([True]))
+    y = np.array([[0.02], [0.001], [-0.3], [1e-3], [2e-4], [9.5]])
+    jac = rhs.jacobian(y)[0]
+    scale = np.array([0.02, 0.001, 0.3, 1e-3, 2e-4, 9.5])
+    for col in range(6):
+        d = np.zeros_like(y)
+        d[col] = 1e-6 * scale[col]
+        fd = (rhs(y + d) - rhs(y - d))[:, 0] / (2 * d[col, 0])
+        np.testing.assert_allclose(jac[:, col], fd, rtol=1e-6, atol=1e-9 * np.max(np.abs(fd)) + 1e-12,
+                                   err_msg=f"column {col}")
