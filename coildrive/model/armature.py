@@ -19,7 +19,8 @@ With an eddy resistance ``R_e`` across the magnetising branch (``ArmatureParams.
 :mod:`coildrive.model.eddy`) ``lambda`` and ``i`` are the branch's, the force follows
 them, and the branch sees the loop's Thevenin pair: ``dlambda/dt = V R_e/(R + R_e) -
 R R_e/(R + R_e) i`` on and while the freewheel conducts (``V = -V_off``, ``R = R_off``);
-the terminal current ``(V + R_e i)/(R + R_e)`` is what ``q``, ``sq`` integrate. Where it
+the terminal current ``(V + R_e i)/(R + R_e)`` is what ``q``, ``sq`` integrate (switched
+on from a drooping bus, ``V`` is the bulk capacitor's voltage, a state). Where it
 reaches zero the freewheel blocks (an event of the steppers) and ``dlambda/dt = -R_e i``:
 the flux outlasts the terminal current.
 

@@ -32,8 +32,9 @@ class PullInBatch:
     at that moment, where the motional back-EMF has pulled it down to its local
     minimum; ``hump_current`` is the largest current before it (``dip_depth`` =
     hump - dip, 0 when the current never fell); with an eddy term those two are the
-    terminal current's (what the sense resistor sees), every other current the
-    magnetising current's. ``seat_time``: at rest on the seat (after
+    terminal current's (what the sense resistor sees; on a drooping bus it depends on the
+    bus too, and the hump is its highest from the motion's start on), every other
+    current the magnetising current's. ``seat_time``: at rest on the seat (after
     any bounces). ``peak_end_current``: the current at the asked time (end of the peak
     phase). ``steps``: integrator steps taken.
 
