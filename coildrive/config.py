@@ -1462,9 +1462,6 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
         key, why = "armature", "a moving armature on a full bridge"
     elif armature is not None and coil.flux_current:
         key, why = "coil.flux_current", "a flux-linkage curve and a moving armature"
-    elif armature is not None and coil.eddy_resistance:
-        key = "coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance"
-        why = "an eddy-current term and a moving armature"
     elif armature is not None and _open_loop_refusal(hold, None):
         key, why = _open_loop_refusal(hold, None)
         why += " and a moving armature"
@@ -1472,7 +1469,7 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
                          f"{why}: expected source_resistance left out, or a coil with a curve or an "
                          "eddy term (not both; a full bridge: a voltage-mode, slow-decay, open-loop hold, "
-                         "no [armature]; an [armature]: a linear coil, one switch and a voltage-mode "
+                         "no [armature]; an [armature]: a linear coil (an eddy term allowed), one switch and a voltage-mode "
                          "open-loop hold)")
 
 

@@ -19,7 +19,8 @@ With an eddy resistance ``R_e`` across the magnetising branch (``ArmatureParams.
 :mod:`coildrive.model.eddy`) ``lambda`` and ``i`` are the branch's, the force follows
 them, and the branch sees the loop's Thevenin pair: ``dlambda/dt = V R_e/(R + R_e) -
 R R_e/(R + R_e) i`` on and while the freewheel conducts (``V = -V_off``, ``R = R_off``);
-the terminal current ``(V + R_e i)/(R + R_e)`` is what ``q``, ``sq`` integrate. Where it
+the terminal current ``(V + R_e i)/(R + R_e)`` is what ``q``, ``sq`` integrate (switched
+on from a drooping bus, ``V`` is the bulk capacitor's voltage, a state). Where it
 reaches zero the freewheel blocks (an event of the steppers) and ``dlambda/dt = -R_e i``:
 the flux outlasts the terminal current.
 
@@ -171,7 +172,7 @@ class ArmatureParams:
         armature resting on the open stop (``open_``) or on the seat."""
         from .supply import bus
         return bus(self.v_on, self.source_resistance, self.capacitance, self.r_on,
-                   self.l_open if open_ else self.l_closed)
+                   self.l_open if open_ else self.l_closed, self.eddy)
 
     @property
     def l_open(self) -> np.ndarray:
@@ -197,19 +198,21 @@ class ArmatureParams:
         from .eddy import EddyCoil
         return EddyCoil(branch, self.eddy)
 
-    def terminal(self, i_m, on, r_off=None, v_off=None) -> np.ndarray:
+    def terminal(self, i_m, on, r_off=None, v_off=None, bus=None) -> np.ndarray:
         """Terminal current in A at magnetising current ``i_m`` A: with the switch ``on``
         ``(V_on + R_e i_m) / (R_on + R_e)``, off ``(R_e i_m - V_off) / (R_off + R_e)``
         while the freewheel conducts and 0 once that would be negative (the path
         blocks). Without an eddy term the coil's current itself (0 or more).
-        ``r_off``/``v_off``: another freewheel path's (split decay's fast path)."""
+        ``r_off``/``v_off``: another freewheel path's (split decay's fast path);
+        ``bus``: on a drooping bus the capacitor's voltage V in place of ``V_on``."""
         i_m = np.asarray(i_m, float)
         if self.eddy is None:
             return np.maximum(i_m, 0.0)
         r_off = self.r_off if r_off is None else r_off
         v_off = self.v_off if v_off is None else v_off
         re_ = self.eddy
-        return np.where(on, (self.v_on + re_ * i_m) / (self.r_on + re_),
+        v_on = self.v_on if bus is None else np.asarray(bus, float)
+        return np.where(on, (v_on + re_ * i_m) / (self.r_on + re_),
                         np.maximum((re_ * i_m - v_off) / (r_off + re_), 0.0))
 
     @property

@@ -64,6 +64,11 @@ class _Rhs:
 
         dlambda/dt = u - R_on i                      switch on (the bus feeds the coil)
         C du/dt    = (V_s - u)/R_s - i [switch on]   (the freewheel path draws nothing)
+
+    With an eddy term (``p.eddy``, the resistance ``R_e`` across the magnetising branch)
+    ``i`` is the branch's current and the branch sees the loop's Thevenin pair: switched on
+    ``dlambda/dt = k (u - R_on i)`` with ``k = R_e/(R_on + R_e)``, and the bus feeds the
+    terminal current ``k (i + u/R_e)`` (what ``q``, ``sq`` integrate too).
     """
 
     def __init__(self, p: ArmatureParams, on: np.ndarray, live: np.ndarray):
@@ -77,6 +82,10 @@ class _Rhs:
         #: the terminal current ``i_t = t0 + t1 i`` of the magnetising current ``i`` (see
         #: :meth:`terminal`); ``None``: no eddy term, the coil's current is the terminal's
         self.t0 = self.t1 = None
+        #: on a drooping bus with an eddy term: the terminal current's share of the bus,
+        #: ``1/(R_on + R_e)`` S where switched on (0 off), and the branch's share ``k``
+        self.tu = None
+        self.k_on = 1.0
         if p.eddy is not None:
             # the loop seen from the magnetising branch (its Thevenin pair, model.eddy);
             # blocked (off, not live): the flux dies through R_e alone, no terminal current
@@ -88,6 +97,10 @@ class _Rhs:
             self.t0 = np.where(blocked, 0.0, np.where(on, p.v_on, -p.v_off) / c)
             self.t1 = np.where(blocked, 0.0, re_ / c)
             self.live = np.ones_like(self.live)
+            if p.droops:   # switched on, the bus (a state) takes V_on's place
+                self.k_on = re_ / c
+                self.tu = np.where(on, 1.0 / c, 0.0)
+                self.t0 = np.where(on, 0.0, self.t0)
         self.f0 = (p.preload + p.rate * p.stroke + p.load) / p.mass
         self.km = p.rate / p.mass
         self.cm = p.beta * self.inv_lc / (2.0 * p.mass)
@@ -129,10 +142,17 @@ class _Rhs:
         jac[:, 4, 0] = 2.0 * i * di_dl
         jac[:, 4, 1] = 2.0 * i * di_dx
         if self.droop:
-            jac[:, 0, 5] = self.live * self.on
+            jac[:, 0, 5] = self.live * self.on * self.k_on
             jac[:, 5, 0] = -self.on * self.inv_c * di_dl
             jac[:, 5, 1] = -self.on * self.inv_c * di_dx
             jac[:, 5, 5] = -self.g_s
+            if self.tu is not None:   # the terminal current's bus share
+                i = i + self.tu * y[5]
+                jac[:, 3, 5] = self.tu
+                jac[:, 4, 5] = 2.0 * i * self.tu
+                jac[:, 4, 0] = 2.0 * i * di_dl
+                jac[:, 4, 1] = 2.0 * i * di_dx
+                jac[:, 5, 5] -= self.on * self.inv_c * self.tu
         return jac
 
     def terminal_rate(self, y, dy):
@@ -145,12 +165,19 @@ class _Rhs:
             di_dx = lam * self.beta * self.inv_lc
         else:
             i, di_dl, di_dx, _, _ = self.curves.state(lam, x)
-        return self.t0 + self.t1 * i, self.t1 * (di_dl * dy[0] + di_dx * dy[1])
+        rate = self.t1 * (di_dl * dy[0] + di_dx * dy[1])
+        if self.tu is not None:
+            return self.terminal(i, y[5]), rate + self.tu * dy[5]
+        return self.t0 + self.t1 * i, rate
 
-    def terminal(self, i):
-        """Terminal current A at magnetising current ``i`` A, in this flight's switch
-        state: the coil's current without an eddy term."""
-        return i if self.t1 is None else self.t0 + self.t1 * i
+    def terminal(self, i, u=None):
+        """Terminal current A at magnetising current ``i`` A (and, on a drooping bus with
+        an eddy term, bus ``u`` V), in this flight's switch state: the coil's current
+        without an eddy term."""
+        if self.t1 is None:
+            return i
+        out = self.t0 + self.t1 * i
+        return out if self.tu is None else out + self.tu * u
 
     def __call__(self, y: np.ndarray) -> np.ndarray:
         lam, x, v = y[0], y[1], y[2]
@@ -161,17 +188,17 @@ class _Rhs:
             i, _, _, force, _ = self.curves.state(lam, x)
             pull = force * self.inv_m
         out = np.empty_like(y)
+        u = y[5] if self.droop else None
         if self.droop:
-            u = y[5]
-            drive_v = np.where(self.on > 0, u, self.drive_v)
+            drive_v = np.where(self.on > 0, self.k_on * u, self.drive_v)
             out[0] = self.live * (drive_v - self.drive_r * i)
-            out[5] = self.g_s * (self.v_s - u) - self.on * self.inv_c * i
         else:
             out[0] = self.live * (self.drive_v - self.drive_r * i)
         out[1] = v
         out[2] = self.f0 - self.km * x - pull - self.dm * v
-        if self.t1 is not None:
-            i = self.t0 + self.t1 * i
+        i = self.terminal(i, u)
+        if self.droop:
+            out[5] = self.g_s * (self.v_s - u) - self.on * self.inv_c * i
         out[3] = i
         out[4] = i * i
         return out
@@ -386,6 +413,8 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
             tr = ok & track
             if tr.any():
                 i_new = p.current(y_new[0], y_new[1])
+                if rhs.tu is not None:   # an eddy term on a drooping bus: the terminal current
+                    i_new = rhs.terminal(i_new, y_new[5])
                 up = tr & (i_new > peak[0])
                 peak[0] = np.where(up, i_new, peak[0])
                 peak[1] = np.where(up, t_new, peak[1])

@@ -32,8 +32,9 @@ class PullInBatch:
     at that moment, where the motional back-EMF has pulled it down to its local
     minimum; ``hump_current`` is the largest current before it (``dip_depth`` =
     hump - dip, 0 when the current never fell); with an eddy term those two are the
-    terminal current's (what the sense resistor sees), every other current the
-    magnetising current's. ``seat_time``: at rest on the seat (after
+    terminal current's (what the sense resistor sees; on a drooping bus it depends on the
+    bus too, and the hump is its highest from the motion's start on), every other
+    current the magnetising current's. ``seat_time``: at rest on the seat (after
     any bounces). ``peak_end_current``: the current at the asked time (end of the peak
     phase). ``steps``: integrator steps taken.
 
@@ -116,7 +117,11 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     stall_gap = np.where(moves, np.nan, p.stroke)
     bounces = np.zeros(n, int)
     steps = np.zeros(n, int)
-    peak = np.stack([np.where(moves, i_start, 0.0), np.where(moves, t_start, 0.0)])
+    # the running highest current (with an eddy term on a drooping bus the terminal
+    # current, which depends on the bus too: tracked as it is, from the motion's start)
+    sensed = droop and p.eddy is not None
+    peak = np.stack([np.where(moves, p.terminal(i_start, True, bus=u_start) if sensed else i_start, 0.0),
+                     np.where(moves, t_start, 0.0)])
     want = None if peak_time is None else np.broadcast_to(np.asarray(peak_time, float), (n,)).copy()
     query_y = np.full((y.shape[0], n), np.nan)
     low = low_until = None
@@ -147,7 +152,8 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
         first = seat & np.isnan(impact_time)
         impact_time = np.where(first, t, impact_time)
         impact_speed = np.where(first, -v, impact_speed)
-        dip_current = np.where(first, p.current(lam, 0.0), dip_current)
+        dip_current = np.where(first, p.terminal(p.current(lam, 0.0), True, bus=y[5]) if sensed
+                               else p.current(lam, 0.0), dip_current)
         rebound = p.restitution * np.abs(v)
         bounce = seat & (rebound >= REST_FRACTION * impact_speed) & (bounces < MAX_BOUNCES) & (rebound > 0)
         bounces += bounce
@@ -207,7 +213,7 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     dip_time = np.where(seated, impact_time, np.nan)
     dip_current = np.where(seated, dip_current, np.nan)
     hump = np.where(seated, np.maximum(peak[0], dip_current), np.nan)
-    if p.eddy is not None:   # the dip as the sense resistor sees it: the terminal current
+    if p.eddy is not None and not sensed:   # the dip as the sense resistor sees it: the terminal current
         dip_current, hump = p.terminal(dip_current, True), p.terminal(hump, True)
     # current at the end of the peak phase
     if want is None:

@@ -116,10 +116,11 @@ class _Point:
         out = self.p.flux_closed(i) if seated else self.p.flux_open(i)
         return float(out[0]) if np.ndim(i) == 0 else out
 
-    def terminal(self, i_m, on):
+    def terminal(self, i_m, on, bus=None):
         """Terminal current A at magnetising current ``i_m`` A with the switch ``on``
-        (the coil's current, at least 0, without an eddy term)."""
-        out = self.p.terminal(i_m, on)
+        (the coil's current, at least 0, without an eddy term); ``bus``: the capacitor's
+        voltage V on a drooping bus."""
+        out = self.p.terminal(i_m, on, bus=bus if self.droop else None)
         return float(out[0]) if np.ndim(i_m) == 0 else out
 
     def current(self, lam, x):
@@ -439,7 +440,8 @@ def _free_segment(run: _Run, t_end: float, on: bool, method: str, rtol: float, d
         if first:
             run.impact_speed = v
             i_dip = pt.current(run.y[0], 0.0)
-            run.events["dip_current"] = i_dip if pt.eddy is None else pt.terminal(i_dip, on)
+            run.events["dip_current"] = i_dip if pt.eddy is None else pt.terminal(
+                i_dip, on, float(run.y[5]) if pt.droop else None)
             run.mark("impact")
         rebound = pt.restitution * abs(run.y[2])
         if rebound > 0 and rebound >= REST_FRACTION * run.impact_speed and run.bounces < MAX_BOUNCES:
@@ -548,10 +550,12 @@ def simulate(p: ArmatureParams, schedule, state: str = "open", flux: float = 0.0
     magnetising = None
     if pt.eddy is not None:   # the terminal current of each piece's switch state and path
         magnetising = cur
-        cur = np.concatenate([c[3].p.terminal(pt.current(c[1][0], c[1][1]), c[2])
+        cur = np.concatenate([c[3].terminal(pt.current(c[1][0], c[1][1]), c[2],
+                                            c[1][5] if pt.droop else None)
                               for c in run.chunks])
         if ts[-1] == run.t:
-            cur[-1] = run.pt.p.terminal(magnetising[-1:], bool(ons[-1]))[0]
+            cur[-1] = run.pt.terminal(magnetising[-1:], bool(ons[-1]),
+                                      run.y[5:6] if pt.droop else None)[0]
     return Trajectory(time=ts, flux=ys[0], position=ys[1], velocity=ys[2], switch_on=ons,
                       charge=ys[3], square=ys[4], current=np.maximum(cur, 0.0),
                       magnetising_current=magnetising,

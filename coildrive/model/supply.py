@@ -283,9 +283,11 @@ def time_to(i_target, b: Bus, i0, v0, t_max) -> np.ndarray:
 
 
 def integrals_from(t, b: Bus, i0, v0, nodes: int = 64) -> tuple[np.ndarray, np.ndarray]:
-    """``(int i dt A*s, int i^2 dt A^2*s)`` over ``[0, t]`` s from ``(i0, v0)``, the switch
-    on: the charge exact (integrating ``x' = A (x - x_ss)``: ``int (x - x_ss) dt =
-    A^-1 (x(t) - x0)``), the square by ``nodes``-point Gauss-Legendre quadrature of the
+    """``(int i dt A*s, int i^2 dt A^2*s)`` of the coil's terminal current (:func:`terminal`;
+    with an eddy term ``k (i_m + v/R_e)``, else the current itself) over ``[0, t]`` s from
+    ``(i0, v0)`` (``i0`` the magnetising current with an eddy term), the switch on: the
+    charge exact (integrating ``x' = A (x - x_ss)``: ``int (x - x_ss) dt = A^-1 (x(t) -
+    x0)``, both rows), the square by ``nodes``-point Gauss-Legendre quadrature of the
     closed form (numpy's ``leggauss``; the integrand is smooth, a few exponentials)."""
     shape = np.broadcast_shapes(np.shape(t), b.i_ss.shape, np.shape(i0), np.shape(v0))
     t, i0, v0 = (np.broadcast_to(np.asarray(a, float), shape) for a in (t, i0, v0))
@@ -293,10 +295,13 @@ def integrals_from(t, b: Bus, i0, v0, nodes: int = 64) -> tuple[np.ndarray, np.n
     i1, v1 = state_from(t, b, i0, v0)
     det = a11 * a22 - a12 * a21
     charge = b.i_ss * t + (a22 * (i1 - i0) - a12 * (v1 - v0)) / det
+    volts = b.v_ss * t + (a11 * (v1 - v0) - a21 * (i1 - i0)) / det   # int v dt, V*s
     x, w = np.polynomial.legendre.leggauss(nodes)
     s = 0.5 * t[..., None] * (x + 1.0)
-    ii = state_from(s, _expand(b), i0[..., None], v0[..., None])[0]
-    return charge, 0.5 * t * np.sum(w * ii * ii, axis=-1)
+    wide = _expand(b)
+    ii = terminal(*state_from(s, wide, i0[..., None], v0[..., None]), wide)
+    return ((charge + b.g_e * volts) / (1.0 + b.r * b.g_e),
+            0.5 * t * np.sum(w * ii * ii, axis=-1))
 
 
 def _expand(b: Bus) -> Bus:

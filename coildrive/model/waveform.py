@@ -639,6 +639,14 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
                 live=bool(head.current[-1] > 0), method=method, points=points, stop=released,
                 release_params=p_rel, t0=peak_time)
             tr = _joined(head, rest, float(p.v_on[0]))
+    if tr is None and peak_time > 0 and p_peak is not p and p.eddy is not None:
+        # an eddy term on the drooping bus: the peak on it, then on from its end state on
+        # the stiff bus (the terminal current steps with the bus there, a row each side)
+        head = simulate(p_peak, schedule[:1], method=method, points=points)
+        rest = simulate(p, schedule[1:], state=head.state, start=np.array(
+            [head.flux[-1], head.position[-1], head.velocity[-1], head.charge[-1], head.square[-1]]),
+            live=True, method=method, points=points, stop=released, release_params=p_rel, t0=peak_time)
+        tr = _joined(head, rest, float(p.v_on[0]))
     if tr is None:
         tr = simulate(p, schedule, method=method, points=points, stop=released,
                       release_params=p_rel)
@@ -697,13 +705,18 @@ def _joined(head, rest, v_bus: float):
     end on the stiff bus at ``v_bus`` V): samples end to end, the moments of both."""
     import dataclasses
 
-    cat = {name: np.concatenate([getattr(head, name), getattr(rest, name)[1:]])
-           for name in ("time", "flux", "position", "velocity", "switch_on", "charge", "square",
-                        "current")}
+    names = ["time", "flux", "position", "velocity", "switch_on", "charge", "square", "current"]
+    # with an eddy term the rest's first row stays: the terminal current steps there (the
+    # bus back at the supply, the switch's new state), the magnetising current does not
+    eddy = head.magnetising_current is not None
+    first = 0 if eddy else 1
+    if eddy:
+        names.append("magnetising_current")
+    cat = {name: np.concatenate([getattr(head, name), getattr(rest, name)[first:]]) for name in names}
     return dataclasses.replace(
         rest, **cat, events={**rest.events, **head.events}, log=head.log + rest.log,
         impacts=head.impacts + rest.impacts,
-        bus=np.concatenate([head.bus, np.full(rest.time.size - 1, v_bus)]))
+        bus=np.concatenate([head.bus, np.full(rest.time.size - first, v_bus)]))
 
 
 def hold_samples(t_start: float, i0: float, v: float, r_on: float, r_off: float, v_off: float,
