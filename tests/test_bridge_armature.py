@@ -13,6 +13,8 @@ stops that end the motion dead. None of coildrive's model code is used for the r
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
@@ -308,3 +310,41 @@ def test_the_pump_up_bound_is_on_the_safe_side(tmp_path):
     bound = V_BUS + float(release(p_fast, i_off).charge[0]) / ref.cap
     assert y_end[7] > V_BUS + 0.1   # the bus did rise
     assert y_end[7] <= bound and bound - V_BUS < 1.05 * (y_end[7] - V_BUS)
+
+
+def test_firmware_in_the_loop_with_mixed_decay(tmp_path):
+    """The compiled driver (gcc) with a mixed-decay hold (30 % of each off-time fast into
+    the bus, the driver's ``coil_port_fast_end``) and the armature in the loop: `check`
+    passes at the lowest supply with the hottest coil (pull-in, seat, the mixed hold's
+    mean, the fast release). Plumbing: the coil model is the design's."""
+    import json
+
+    from conftest import require_tool, run_cli
+    from coildrive.bench.device import DeviceOptions
+    from coildrive.bench.firmware_device import FirmwareDevice
+    from coildrive.codegen.driver import render_driver
+    from coildrive.codegen.host_build import build_firmware
+    from test_emulator_device import capture_of, run as run_device
+
+    require_tool("gcc")
+    plain = _drive(tmp_path)
+    path = tmp_path / "mixed.toml"
+    path.write_text(Path(plain.source).read_text().replace(
+        'frequency = "20 kHz"\n', 'frequency = "20 kHz"\nfast_fraction = 0.3\n'))
+    drive = load_drive(path)
+    assert drive.hold.fast_fraction == 0.3
+    des = design(drive)
+    (tmp_path / "fw").mkdir()
+    for name, text in render_driver(des).items():
+        (tmp_path / "fw" / name).write_text(text)
+    lib = build_firmware(tmp_path / "fw", des, cache=tmp_path / "cache")
+    hot = max(c.coil_temp_c for c in des.corners)
+    dev = FirmwareDevice(des, lib, DeviceOptions(supply=drive.supply.min, coil_temp=hot, noise_codes=1,
+                                                 seed=3, hold_time=0.03))
+    dev._now = 0.0
+    msgs, _ = run_device(dev, 2.3 * dev.period, step=0.01)
+    capture_of(msgs, tmp_path / "mixed.cdcap")
+    r = run_cli("check", str(tmp_path / "mixed.cdcap"), str(path), "--json", "--coil-temp", str(hot))
+    rows = {i["name"]: i for i in json.loads(r.stdout)["items"]}
+    assert r.returncode == 0, {n: (i["status"], i["detail"]) for n, i in rows.items()}
+    assert rows["seated_time"]["status"] == "pass" and rows["release_time"]["status"] == "pass"
