@@ -1504,8 +1504,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                  supply: Supply, hold: Hold, pull_in: PullIn, armature: Armature | None,
                  duty) -> None:
     """What the boosted peak (``supply.boost``) is modelled with: a linear coil, a low-side
-    or a high-side switch, a diode/zener/resistor freewheel, a stiff main supply, a
-    voltage-mode open-loop hold, a peak that ends at its threshold, no moving armature.
+    or a high-side switch, a diode/zener/resistor freewheel, a stiff main supply, a PWM
+    hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
+    mode), a peak that ends at its threshold, no moving armature.
     Anything else is refused in one line."""
     if not supply.boosted:
         return
@@ -1528,8 +1529,10 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         source = fw_origins.get("split_decay", source)
     elif supply.droops:
         key, why = "supply.source_resistance", "a drooping main supply"
-    elif _open_loop_refusal(hold, armature):
-        key, why = _open_loop_refusal(hold, armature)
+    elif hold.mode == "latch":
+        key, why = "hold.mode", "a latching coil"
+    elif armature is not None:
+        key, why = "armature", "a moving armature"
     elif pull_in.compensate:
         key, why = "pull_in.compensate", "a supply-compensated peak (the boosted peak ends at its threshold)"
     elif pull_in.settle_time > 0:
@@ -1540,7 +1543,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         raise InputError(source, key, f"the boosted peak (supply.boost) is not modelled with {why}: "
                          "expected boost left out, or a linear coil, a low-side or high-side switch, a "
                          "diode/zener/resistor freewheel without split decay, a stiff main supply, a "
-                         "voltage-mode open-loop hold, a peak without compensate or settle_time, no "
+                         "voltage-mode or current-mode hold, a peak without compensate or settle_time, no "
                          "[armature] and no [duty]")
 
 

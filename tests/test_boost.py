@@ -252,7 +252,6 @@ REFUSALS = [
     ("bridge", None, None, "bridge-m32-fast", "switch.topology"),
     ("clamp", 'type = "diode"\ndiode_drop = "0.8 V"', 'type = "clamp"\nclamp_voltage = "75 V"', None,
      "freewheel.type"),
-    ("current-mode", "[hold]", '[hold]\nmode = "current"\nband = "0.1 A"', None, "hold.mode"),
     ("droop", 'max = "16 V"', 'max = "16 V"\nsource_resistance = "0.05 ohm"\ncapacitance = "1 mF"', None,
      "supply.source_resistance"),
     ("settle", "margin = 1.5", 'margin = 1.5\nsettle_time = "1 ms"', None, "pull_in.settle_time"),

@@ -82,6 +82,15 @@ def firmware_peak(design, supply: float, coil_temp: float, r_factor: float = 1.0
     return min(t, design.pull_in.peak_time_s or 0.0)
 
 
+def peak_in_force(design, supply: float, coil_temp: float, r_factor: float = 1.0,
+                  l_factor: float = 1.0) -> float:
+    """The peak (s) a design's firmware runs at one point: the boosted peak's
+    :func:`firmware_peak`, else the designed peak time (0 without one)."""
+    if design.boost is None or not design.pull_in.peak_time_s:
+        return design.pull_in.peak_time_s or 0.0
+    return firmware_peak(design, supply, coil_temp, r_factor, l_factor)
+
+
 def _seen(drive: Drive, b: model.Boost) -> np.ndarray:
     """When the firmware sees the threshold at the latest (s; ``inf`` where never): the
     highest trip current (the chain reading low), one conversion late."""
