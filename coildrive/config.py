@@ -1537,14 +1537,12 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = "pull_in.compensate", "a supply-compensated peak (the boosted peak ends at its threshold)"
     elif pull_in.settle_time > 0:
         key, why = "pull_in.settle_time", "a settle time (the boosted peak ends at its threshold)"
-    elif duty is not None:
-        key, why = "duty", "an on/off cycle"
     if why is not None:
         raise InputError(source, key, f"the boosted peak (supply.boost) is not modelled with {why}: "
                          "expected boost left out, or a linear coil, a low-side or high-side switch, a "
                          "diode/zener/resistor freewheel without split decay, a stiff main supply, a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time, no "
-                         "[armature] and no [duty]")
+                         "[armature]")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,

@@ -104,6 +104,27 @@ def slowest_peak(drive: Drive, lp) -> np.ndarray:
     return _seen(drive, _boost(drive, lp, lp.inductance, False))
 
 
+def peak_heat(drive: Drive, lp, peak_time) -> np.ndarray:
+    """J the coil's copper takes in one boosted peak at the points of ``lp``: ``R_coil int
+    i^2 dt`` (:func:`coildrive.model.boost.square_integral`) from switch-on until the
+    firmware sees the threshold at the latest, or ``peak_time`` s (the time-out) if sooner
+    -- from the boost at its lowest (the longest peak) and at its highest (the most
+    current), the larger."""
+    heat = np.zeros(np.shape(lp.r_coil))
+    for high in (False, True):
+        b = _boost(drive, lp, lp.inductance, high)
+        t = np.minimum(_seen(drive, b), peak_time)
+        heat = np.maximum(heat, lp.r_coil * model.square_integral(t, b))
+    return heat
+
+
+def shortest_peak(drive: Drive, lp, peak_time) -> np.ndarray:
+    """The shortest boosted peak at the points of ``lp`` (s): the boost at its highest until
+    the firmware sees the threshold, or ``peak_time`` s if sooner. The hold that follows
+    runs for the rest of an on-time, so its heat takes this (the longest hold)."""
+    return np.minimum(_seen(drive, _boost(drive, lp, lp.inductance, True)), peak_time)
+
+
 def end_current(drive: Drive, lp) -> np.ndarray:
     """The highest current at the end of the peak (A) at each point: the boost at its
     highest, up to the highest trip current, one conversion late."""
@@ -218,7 +239,8 @@ def boost_result(drive: Drive, grid: CornerGrid, res, rate: float) -> BoostResul
 
 def boost_checks(drive: Drive, b: BoostResult | None) -> list[Check]:
     """The threshold is reached at every corner and fits the ADC; the boost capacitor stays
-    above the main supply until the threshold; the switch takes the boost's turn-off."""
+    above the main supply until the threshold; with an on/off cycle (``[duty]``) the boost
+    recharges between switch-ons; the switch takes the boost's turn-off."""
     if b is None:
         return []
     out = []
@@ -240,6 +262,16 @@ def boost_checks(drive: Drive, b: BoostResult | None) -> list[Check]:
                          f"end of the peak at {b.lowest_boost_corner}, main supply {b.main_supply_there_v:.4g} V"
                          + ("" if ok else " -- the main supply would take over before the threshold: a "
                             "larger boost capacitance (supply.boost_capacitance)")))
+    if drive.duty is not None and b.min_interval_s is not None:
+        ok = b.min_interval_s <= drive.duty.period
+        out.append(Check("boost_recharge", ok,
+                         f"the boost puts the peak's {b.energy_j:.4g} J back at {b.power_w:.4g} W in "
+                         f"{b.recharge_time_s * 1e3:.4g} ms: switch-on to switch-on needs at least "
+                         f"{b.min_interval_s * 1e3:.4g} ms (the longest peak + the recharge), the on/off "
+                         f"cycle gives {drive.duty.period * 1e3:.4g} ms ({drive.duty.actuation_rate:.4g} "
+                         "actuations/s)" + ("" if ok else " -- the next peak would start from a partly "
+                                            "charged boost: a higher supply.boost_power or a longer "
+                                            "duty.off_time")))
     sw = drive.switch
     limit = sw.max_voltage * sw.derating
     ok = b.switch_voltage_v <= limit
