@@ -275,12 +275,10 @@ def test_unmodelled_combinations_refused_in_one_line(tmp_path, case):
     assert "\n" not in line and key in line, line
 
 
-def test_monte_carlo_and_another_drives_firmware_refused(tmp_path):
-    """The Monte Carlo is refused for a boosted peak; emulate --firmware with a driver folder
-    generated for a drive without a boost (the reference C driver runs a boost only when
-    its header declares one: tests/test_boost_firmware.py) is refused before building."""
-    out = run_cli("design", str(EXAMPLE), "--samples", "100")
-    assert out.returncode == 2 and "supply.boost" in out.stderr, out.stderr
+def test_another_drives_firmware_refused(tmp_path):
+    """emulate --firmware with a driver folder generated for a drive without a boost (the
+    reference C driver runs a boost only when its header declares one:
+    tests/test_boost_firmware.py) is refused before building."""
     assert run_cli("firmware-driver", str(EXAMPLES / "demo-valve.toml"), "--out", str(tmp_path / "demo")).returncode == 0
     out = run_cli("emulate", str(EXAMPLE), "--firmware", str(tmp_path / "demo"), "--duration", "0.1")
     assert out.returncode == 2 and "supply.boost" in out.stderr and out.stderr.strip().count("\n") == 0, out.stderr

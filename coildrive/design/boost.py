@@ -125,6 +125,18 @@ def shortest_peak(drive: Drive, lp, peak_time) -> np.ndarray:
     return np.minimum(_seen(drive, _boost(drive, lp, lp.inductance, True)), peak_time)
 
 
+def sampled_pull_in(drive: Drive, res, v_factor, c_factor):
+    """``res`` (evaluated points) with each point's pull-in time from its own boost: the
+    boost voltage x ``v_factor`` and its capacitance x ``c_factor`` (arrays over the
+    points; the tolerance Monte Carlo draws them within ``boost_tolerance`` and
+    ``boost_capacitance_tolerance``)."""
+    s = drive.supply
+    lp = res.loop
+    b = model.boost(s.boost * np.asarray(v_factor, float), s.boost_capacitance * np.asarray(c_factor, float),
+                    lp.r_on + s.boost_resistance, lp.inductance)
+    return dataclasses.replace(res, pull_in_time=model.threshold_time(drive.pull_in.current, b))
+
+
 def end_current(drive: Drive, lp) -> np.ndarray:
     """The highest current at the end of the peak (A) at each point: the boost at its
     highest, up to the highest trip current, one conversion late."""
