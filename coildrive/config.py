@@ -1524,9 +1524,6 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     elif freewheel.type == "clamp":
         key, why = "freewheel.type", "a clamp across the switch"
         source = fw_origins.get("type", source)
-    elif freewheel.split_decay:
-        key, why = "freewheel.split_decay", "split decay"
-        source = fw_origins.get("split_decay", source)
     elif supply.droops:
         key, why = "supply.source_resistance", "a drooping main supply"
     elif hold.mode == "latch":
@@ -1540,7 +1537,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     if why is not None:
         raise InputError(source, key, f"the boosted peak (supply.boost) is not modelled with {why}: "
                          "expected boost left out, or a linear coil, a low-side or high-side switch, a "
-                         "diode/zener/resistor freewheel without split decay, a stiff main supply, a "
+                         "diode/zener/resistor freewheel (split decay too), a stiff main supply, a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time, no "
                          "[armature]")
 

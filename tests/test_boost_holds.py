@@ -38,6 +38,7 @@ SUPPLY, COIL_TEMP = 9.0, 90.0      # the slow corner's supply and a hot coil, no
 
 CURRENT = ("[hold]", '[hold]\nmode = "current"\nband = "0.1 A"\nmin_frequency = "2 kHz"')
 CLOSED = ("[hold]", '[hold]\nregulation = "closed_loop"')
+SPLIT = ('type = "diode"', 'type = "zener"\nzener_voltage = "24 V"\nsplit_decay = true\nbypass_resistance = "0.05 ohm"')
 
 
 @pytest.fixture(scope="module")
@@ -47,7 +48,7 @@ def designs(tmp_path_factory):
 
     tmp = tmp_path_factory.mktemp("boost-holds")
     return {name: design(load_drive(_variant(tmp, name, *change)))
-            for name, change in (("current", CURRENT), ("closed", CLOSED))}
+            for name, change in (("current", CURRENT), ("closed", CLOSED), ("split", SPLIT))}
 
 
 def _elements(drive) -> dict:
@@ -62,9 +63,10 @@ def _elements(drive) -> dict:
 
 
 def _netlist(e: dict, t_peak: float, hold_switch: list[str], measures: list[str], step: float,
-             tend: float) -> str:
+             tend: float, freewheel: list[str] | None = None) -> str:
     """The boosted peak (boost switch and peak switch on until ``t_peak``), a hold switch
-    (``hold_switch``: from ``drain`` to ``hold``), the release through the freewheel diode."""
+    (``hold_switch``: from ``drain`` to ``hold``), the release through the freewheel diode
+    (or the ``freewheel`` elements from ``drain`` back to ``top``)."""
     return "\n".join([
         "* boosted peak, then a regulated hold from the main supply, then the release",
         f"CB boost 0 {e['c_b']!r} IC={e['v_b']!r}",
@@ -75,7 +77,7 @@ def _netlist(e: dict, t_peak: float, hold_switch: list[str], measures: list[str]
         f"LCOIL n3 drain {e['l_coil']!r} IC=0",
         "SP drain 0 gp 0 SW1", knee("BD1", "0", "drain", e["v_d"]),
         *hold_switch,
-        knee("BFW", "drain", "top", e["v_d"]),
+        *(freewheel or [knee("BFW", "drain", "top", e["v_d"])]),
         f".model SWB SW(VT=0.5 VH=0 RON={e['r_b']!r} ROFF=1e9)",
         f".model SW1 SW(VT=0.5 VH=0 RON={e['r_sw']!r} ROFF=1e9)",
         OPTIONS, ".control", f"tran {step!r} {tend!r} 0 {step!r} uic", *measures,
@@ -91,6 +93,21 @@ def _edges(w, up: bool) -> np.ndarray:
     return k[on[k + 1] == (1 if up else 0)]
 
 
+def _pwm_points(w, frequency: float, duty: float) -> list[str]:
+    """The ``PWL`` points of a PWM gate at ``duty``: periods from the end of the peak, on
+    first, the last cut at its turn-off (the model's ``off`` event), 1 ns ramps."""
+    t_peak, t_off = float(w.events["hold"]), float(w.events["off"])
+    period = 1.0 / frequency
+    n = round((t_off - t_peak - duty * period) / period) + 1
+    assert t_peak + (n - 1) * period + duty * period == pytest.approx(t_off, rel=1e-9)
+    pts = ["0 0"]
+    for m in range(n):
+        t0 = t_peak + m * period
+        pts += [f"{t0 - 0.5e-9!r} 0", f"{t0 + 0.5e-9!r} 1", f"{t0 + duty * period - 0.5e-9!r} 1",
+                f"{t0 + duty * period + 0.5e-9!r} 0"]
+    return pts
+
+
 def _peak_measures(d, t_peak: float) -> list[str]:
     """ngspice's measures of the peak (the current and the boost capacitor at its end) and
     of the release (the last fall through the drop-out current)."""
@@ -104,7 +121,7 @@ def _peak_measures(d, t_peak: float) -> list[str]:
 def _check_peak_and_release(res: dict, w, d, step: float) -> None:
     from coildrive.design.boost import nominal_trip
     from coildrive.model import boost as boost_model
-    from coildrive.model.circuit import loop
+    from coildrive.model.circuit import loop, split_decay
     from coildrive.model.rl import decay_time
     from coildrive.model.waveform import nominal_boost
 
@@ -120,8 +137,10 @@ def _check_peak_and_release(res: dict, w, d, step: float) -> None:
     v_end = float(np.interp(t_peak, w.time, w.boost_voltage))
     assert d.drive.supply.boost - res["vcth"] == pytest.approx(d.drive.supply.boost - v_end, rel=0.01)
     # ngspice: the release from the last turn-off to the drop-out current within 1 % + a step
+    # (with split decay through the release's fast path)
+    rel = loop(d.drive, SUPPLY, COIL_TEMP, path="release") if split_decay(d.drive) else lp
     i_off = float(np.interp(w.events["off"], w.time, w.current))
-    t_drop = float(decay_time(d.drive.release.current, i_off, lp.r_off, lp.v_off, lp.inductance))
+    t_drop = float(decay_time(d.drive.release.current, i_off, rel.r_off, rel.v_off, rel.inductance))
     assert abs(res["tdrop"] - (w.events["off"] + t_drop)) <= 0.01 * t_drop + 2 * step, (res["tdrop"], t_drop)
 
 
@@ -157,35 +176,48 @@ def test_current_mode_hold_after_the_boost_against_ngspice(tmp_path, designs):
         assert abs(res[f"toff{k}"] - t) <= 0.01 * (t - t_peak) + 2 * step, (k, res[f"toff{k}"], t)
 
 
-def test_closed_loop_hold_after_the_boost_against_ngspice(tmp_path, designs):
-    from coildrive.design import actuation
-    from coildrive.design.loop_duty import settled_duty
+@pytest.mark.parametrize("name", ["closed", "split"])
+def test_pwm_hold_after_the_boost_against_ngspice(tmp_path, designs, name):
+    """The closed loop's settled PWM, and a supply-table hold with split decay (the hold
+    through the freewheel diode and the bypass switch, the release with the bypass open
+    through the diode and the Zener), after the boosted peak."""
+    from coildrive.design import actuation, firmware_setting
+    from coildrive.model.circuit import loop
 
-    d = designs["closed"]
+    d = designs[name]
     w = actuation(d, SUPPLY, COIL_TEMP, 0.6e-3)
     t_peak, t_off = float(w.events["hold"]), float(w.events["off"])
-    # the PWM the loop settles at there: periods from the end of the peak, on first
-    period = 1.0 / d.hold.frequency_hz
-    duty = settled_duty(d, SUPPLY, COIL_TEMP)
-    n = round((t_off - t_peak - duty * period) / period) + 1
-    assert t_peak + (n - 1) * period + duty * period == pytest.approx(t_off, rel=1e-9)
+    duty = firmware_setting(d, SUPPLY, COIL_TEMP)[0]
+    pts = _pwm_points(w, d.hold.frequency_hz, duty)
     e = _elements(d.drive)
     step = t_peak / 2000
-    pts = ["0 0"]
-    for m in range(n):   # 1 ns ramps
-        t0 = t_peak + m * period
-        pts += [f"{t0 - 0.5e-9!r} 0", f"{t0 + 0.5e-9!r} 1", f"{t0 + duty * period - 0.5e-9!r} 1", f"{t0 + duty * period + 0.5e-9!r} 0"]
     gate = ["SH drain 0 gh 0 SW1", f"VGH gh 0 PWL({' '.join(pts)})"]
     hold = np.flatnonzero((w.time > t_peak) & (w.time <= t_off))
     sample = hold[:: max(1, len(hold) // 16)]
     meas = _peak_measures(d, t_peak)
     meas += [f"meas tran i{j} FIND i(VM) AT={float(w.time[k])!r}" for j, k in enumerate(sample)]
-    res = run(tmp_path, "boost-closed", _netlist(e, t_peak, gate, meas, step, float(w.time[-1])))
+    freewheel = None
+    if name == "split":
+        fw = d.drive.freewheel
+        assert fw.split_decay and fw.bypass_lead == 0.0 and w.events["bypass_open"] == t_off
+        freewheel = [knee("BFW", "drain", "z", e["v_d"]), knee("BZ", "z", "top", fw.zener_voltage),
+                     "SBY z top gby 0 SWBY", f"VGBY gby 0 PULSE(1 0 {t_off - 0.5e-9!r} 1e-9 1e-9 1 2)",
+                     f".model SWBY SW(VT=0.5 VH=0 RON={fw.bypass_resistance!r} ROFF=1e9)",
+                     "BVP vp 0 V = v(drain) - v(top)"]   # the path's voltage, drain over the rail
+        meas.append(f"meas tran vpath MAX v(vp) from={t_off + 5e-9!r} to={t_off + 20 * step!r}")
+    res = run(tmp_path, f"boost-{name}", _netlist(e, t_peak, gate, meas, step, float(w.time[-1]), freewheel))
     # ngspice: the coil current through the hold (the PWM from the main supply, down from
-    # the boost's end current towards the loop's set-point) within 1 %
+    # the boost's end current) within 1 %
     for j, k in enumerate(sample):
         assert res[f"i{j}"] == pytest.approx(float(w.current[k]), rel=0.01), (j, res[f"i{j}"], w.current[k])
     _check_peak_and_release(res, w, d, step)
+    if name == "split":
+        # ngspice: the release path's voltage right after the final turn-off (diode + Zener,
+        # the bypass open) within 1 %: the switch sees the rail plus this
+        fast = loop(d.drive, SUPPLY, COIL_TEMP, path="release")
+        i_off = float(np.interp(t_off, w.time, w.current))
+        want = float(fast.switch_voltage(d.drive, i_off)) - SUPPLY
+        assert res["vpath"] == pytest.approx(want, rel=0.01), (res["vpath"], want)
 
 
 def test_regulated_holds_carry_the_boost_end_to_end(tmp_path, designs):
@@ -221,3 +253,16 @@ def test_reference_driver_refuses_a_regulated_hold_after_the_boost(tmp_path):
         line = out.stderr.strip()
         assert out.returncode == 2 and "\n" not in line and key in line, line
         assert not (tmp_path / name).exists()
+
+
+def test_split_decay_turns_the_boost_off_through_the_fast_path(designs):
+    """Hand-worked: a peak cut short or a trip opens the bypass too, so the switch sees the
+    boost at full charge plus the diode and the Zener (no freewheel resistor)."""
+    d = designs["split"]
+    s, fw = d.drive.supply, d.drive.freewheel
+    want = s.boost * (1 + s.boost_tolerance) + fw.diode_drop + fw.zener_voltage
+    assert d.boost.switch_voltage_v == pytest.approx(want, rel=1e-12)
+    ends = {o["event"]: o for o in d.release.turn_offs}
+    assert ends["end of peak"]["switch_voltage_v"] == pytest.approx(want, rel=1e-12)
+    assert d.release.peak_switch_voltage_v == pytest.approx(want, rel=1e-12)
+    assert d.split_decay is not None and {c.name: c for c in d.checks}["boost_switch_voltage"].ok

@@ -146,6 +146,12 @@ def end_current(drive: Drive, lp) -> np.ndarray:
                     model.highest_current(b))
 
 
+def _release_loop(res):
+    """The loop a turn-off goes through at the points of ``res``: with split decay the
+    release's (the bypass open, the fast path: the higher switch voltage), else the hold's."""
+    return res.release_loop if res.release_loop is not None else res.loop
+
+
 def _turn_off_voltage(drive: Drive, lp, v_top, current) -> np.ndarray:
     """The low-side switch's voltage at the end of the peak: the top of the coil at
     ``v_top`` V plus the freewheel path's voltage at ``current`` A."""
@@ -155,15 +161,15 @@ def _turn_off_voltage(drive: Drive, lp, v_top, current) -> np.ndarray:
 def boosted_points(drive: Drive, res):
     """``res`` (:class:`~coildrive.design.evaluate.PointResults`, the points with the most
     current) with the boosted peak's highest end current, and the switch voltage of its
-    turn-off from the boost at full charge. (A boosted peak has one freewheel path: no
-    split decay, no bridge.)"""
+    turn-off from the boost at full charge (with split decay through the release's fast
+    path: a peak cut short or a trip opens the bypass too)."""
     if not drive.supply.boosted:
         return res
-    lp = res.loop
+    lp, rel = res.loop, _release_loop(res)
     i_end = end_current(drive, lp)
     interrupt = np.maximum(i_end, res.hold.i_max)
-    v_sw = lp.switch_voltage(drive, interrupt)
-    v_boost = _turn_off_voltage(drive, lp, drive.supply.boost * (1.0 + drive.supply.boost_tolerance), i_end)
+    v_sw = rel.switch_voltage(drive, interrupt)
+    v_boost = _turn_off_voltage(drive, rel, drive.supply.boost * (1.0 + drive.supply.boost_tolerance), i_end)
     return dataclasses.replace(res, peak_end_current=i_end, interrupt_current=interrupt,
                                peak_switch_voltage=np.maximum(v_sw, v_boost))
 
@@ -176,7 +182,7 @@ def boosted_turn_offs(drive: Drive, grid: CornerGrid, res, offs: list[dict]) -> 
     path across the coil takes the coil's energy whatever the rail.)"""
     if not drive.supply.boosted:
         return offs
-    lp = res.loop
+    lp = _release_loop(res)
     v_top = drive.supply.boost * (1.0 + drive.supply.boost_tolerance)
     out = []
     for o in offs:
@@ -218,8 +224,9 @@ def boost_result(drive: Drive, grid: CornerGrid, res, rate: float) -> BoostResul
     energy = np.maximum(model.energy_drawn(t_end, fast), model.energy_drawn(t_low, slow))
     k_e, k_i = int(np.argmax(energy)), int(np.argmax(i_end))
     v_top = s.boost * (1.0 + s.boost_tolerance)
-    v_sw = _turn_off_voltage(drive, lp, v_top, i_end)
-    v_sw_end = _turn_off_voltage(drive, lp, v_end, i_end)
+    rel = _release_loop(res)
+    v_sw = _turn_off_voltage(drive, rel, v_top, i_end)
+    v_sw_end = _turn_off_voltage(drive, rel, v_end, i_end)
     k_v = int(np.argmax(v_sw))
     timeout = (math.ceil(float(t_slow[k_slow]) * drive.pull_in.margin * rate - 1e-9) + 1) if reached else None
     recharge = interval = None

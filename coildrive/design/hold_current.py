@@ -632,8 +632,9 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
         t_last, i_last = last_on if last_on else (t_off_edge, i)
         t_open, zero = split_release(drive, lp, fast, t_off_edge, i, t_last, i_last, ts[-1],
                                      big, ts, cs, ons)
-        return split_waveform(drive, lp, fast, supply, ts, cs, ons, t_open,
-                              {"on": 0.0, "hold": peak_time, "off": t_off_edge, "zero": zero,
-                               "bypass_open": t_open}, label)
+        w = split_waveform(drive, lp, fast, supply, ts, cs, ons, t_open,
+                           {"on": 0.0, "hold": peak_time, "off": t_off_edge, "zero": zero,
+                            "bypass_open": t_open}, label)
+        return boost_columns(drive, w, supply, peak_time, r_on, ind)
     w = release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_off_edge, i, big, label)
     return boost_columns(drive, w, supply, peak_time, r_on, ind)

@@ -383,9 +383,10 @@ def _split_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_tim
     ons.append(on_hold)
     t_open, zero = split_release(drive, lp, fast, t_cut, i_cut, t_last, float(starts[-1]), t_hold,
                                  big, ts, cs, ons)
-    return split_waveform(drive, lp, fast, supply, ts, cs, ons, t_open,
-                          {"on": 0.0, "hold": peak_time, "off": t_cut, "zero": zero,
-                           "bypass_open": t_open}, label)
+    w = split_waveform(drive, lp, fast, supply, ts, cs, ons, t_open,
+                       {"on": 0.0, "hold": peak_time, "off": t_cut, "zero": zero,
+                        "bypass_open": t_open}, label)
+    return boost_columns(drive, w, supply, peak_time, r_on, ind)
 
 
 def split_release(drive: Drive, lp, fast, t_cut: float, i_cut: float, t_last: float,
