@@ -1504,7 +1504,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                  supply: Supply, hold: Hold, pull_in: PullIn, armature: Armature | None,
                  duty) -> None:
     """What the boosted peak (``supply.boost``) is modelled with: a linear coil, a low-side
-    or a high-side switch, a diode/zener/resistor freewheel, a stiff main supply, a PWM
+    or a high-side switch, a diode/zener/resistor freewheel (split decay too) or a clamp on
+    a low-side switch, a stiff main supply, a PWM
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
     mode), a peak that ends at its threshold, no moving armature.
     Anything else is refused in one line."""
@@ -1521,8 +1522,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         why = "an eddy-current term"
     elif switch.topology == "full_bridge":
         key, why = "switch.topology", "a full bridge (only a low-side or a high-side switch)"
-    elif freewheel.type == "clamp":
-        key, why = "freewheel.type", "a clamp across the switch"
+    elif freewheel.type == "clamp" and switch.topology != "low_side":
+        key, why = "freewheel.type", "a clamp across a high-side switch (a clamp on a low-side switch only)"
         source = fw_origins.get("type", source)
     elif supply.droops:
         key, why = "supply.source_resistance", "a drooping main supply"
@@ -1537,7 +1538,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     if why is not None:
         raise InputError(source, key, f"the boosted peak (supply.boost) is not modelled with {why}: "
                          "expected boost left out, or a linear coil, a low-side or high-side switch, a "
-                         "diode/zener/resistor freewheel (split decay too), a stiff main supply, a "
+                         "diode/zener/resistor freewheel (split decay too; a clamp on a low-side "
+                         "switch), a stiff main supply, a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time, no "
                          "[armature]")
 

@@ -250,7 +250,8 @@ def _variant(tmp_path, name, old, new, board=None):
 
 REFUSALS = [
     ("bridge", None, None, "bridge-m32-fast", "switch.topology"),
-    ("clamp", 'type = "diode"\ndiode_drop = "0.8 V"', 'type = "clamp"\nclamp_voltage = "75 V"', None,
+    ("clamp-high-side", 'type = "diode"\ndiode_drop = "0.8 V"', 'type = "clamp"\nclamp_voltage = "75 V"',
+     "sourcing-hs-zener",
      "freewheel.type"),
     ("droop", 'max = "16 V"', 'max = "16 V"\nsource_resistance = "0.05 ohm"\ncapacitance = "1 mF"', None,
      "supply.source_resistance"),

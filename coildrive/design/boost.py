@@ -154,7 +154,11 @@ def _release_loop(res):
 
 def _turn_off_voltage(drive: Drive, lp, v_top, current) -> np.ndarray:
     """The low-side switch's voltage at the end of the peak: the top of the coil at
-    ``v_top`` V plus the freewheel path's voltage at ``current`` A."""
+    ``v_top`` V plus the freewheel path's voltage at ``current`` A. A clamp across the
+    switch holds it at the clamp voltage whatever the rail (the boost switch opens with
+    it; the ``boost_clamp`` check wants the clamp above the boost either way)."""
+    if drive.freewheel.type == "clamp":
+        return np.broadcast_to(lp.switch_voltage(drive, current), np.shape(current)) + 0.0 * np.asarray(v_top, float)
     return np.asarray(v_top, float) + lp.switch_voltage(drive, current) - lp.supply
 
 
@@ -291,6 +295,14 @@ def boost_checks(drive: Drive, b: BoostResult | None) -> list[Check]:
                          "actuations/s)" + ("" if ok else " -- the next peak would start from a partly "
                                             "charged boost: a higher supply.boost_power or a longer "
                                             "duty.off_time")))
+    if drive.freewheel.type == "clamp":
+        v_c = drive.freewheel.clamp_voltage
+        ok = v_c > b.boost_max_v
+        out.append(Check("boost_clamp", ok,
+                         f"the clamp's {v_c:.4g} V against the boost at full charge {b.boost_max_v:.4g} V: "
+                         "a turn-off while the boost switch is still on decays at V_clamp - V_boost"
+                         + ("" if ok else " -- not at all: the current keeps rising through the clamp "
+                            "until the boost switch opens; a clamp_voltage above the boost")))
     sw = drive.switch
     limit = sw.max_voltage * sw.derating
     ok = b.switch_voltage_v <= limit
