@@ -1532,9 +1532,11 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     elif armature is not None:
         key, why = "armature", "a moving armature"
     elif pull_in.compensate:
-        key, why = "pull_in.compensate", "a supply-compensated peak (the boosted peak ends at its threshold)"
+        key, why = "pull_in.compensate", ("a supply-compensated peak (the boosted peak runs from the boost, "
+                                          "not the main supply, and ends at its threshold: nothing to compensate)")
     elif pull_in.settle_time > 0:
-        key, why = "pull_in.settle_time", "a settle time (the boosted peak ends at its threshold)"
+        key, why = "pull_in.settle_time", ("a settle time (the boosted peak ends at its current threshold, "
+                                           "not at a time after the pull-in)")
     if why is not None:
         raise InputError(source, key, f"the boosted peak (supply.boost) is not modelled with {why}: "
                          "expected boost left out, or a linear coil, a low-side or high-side switch, a "
