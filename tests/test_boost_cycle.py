@@ -135,8 +135,10 @@ def test_boosted_peak_heat_and_cycle_against_solve_ivp(cycled):
         return (np.polyval(fit_e, temp) + i2(temp) * r_coil(temp) * held + e_rel) / on
     hot, cool = ivp_orbit(power, amb, c["coolest_c"], on, drive.duty.off_time, drive.thermal.resistance,
                           drive.thermal.capacity, 60)
-    assert hot == pytest.approx(c["hottest_c"], abs=5e-3), "scipy solve_ivp, 60 cycles"
-    assert cool == pytest.approx(c["coolest_c"], abs=5e-3), "scipy solve_ivp, 60 cycles"
+    # (60 cycles are 1.2 s of a 30 s time constant: from the design's coolest point a 0.1 %
+    # error in the power would drift about 1 mK, so the bound is 0.1 mK)
+    assert hot == pytest.approx(c["hottest_c"], abs=1e-4), "scipy solve_ivp, 60 cycles"
+    assert cool == pytest.approx(c["coolest_c"], abs=1e-4), "scipy solve_ivp, 60 cycles"
 
 
 def test_boost_recharge_against_the_actuation_rate(tmp_path, cycled):
