@@ -1521,7 +1521,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key = "coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance"
         why = "an eddy-current term"
     elif switch.topology == "full_bridge":
-        key, why = "switch.topology", "a full bridge (only a low-side or a high-side switch)"
+        key, why = "switch.topology", ("a full bridge (only a low-side or a high-side switch: a bridge's "
+                                       "fast decay would return the coil's energy into the boost rail)")
     elif freewheel.type == "clamp" and switch.topology != "low_side":
         key, why = "freewheel.type", "a clamp across a high-side switch (a clamp on a low-side switch only)"
         source = fw_origins.get("type", source)
