@@ -128,11 +128,12 @@ def test_boosted_peak_heat_and_cycle_against_solve_ivp(cycled):
     temps = np.linspace(c["coolest_c"] - 20, c["hottest_c"] + 20, 5)
     runs = np.array([peak(x) for x in temps])
     fit_e, fit_t = (np.polyfit(temps, runs[:, j], 4) for j in (0, 1))
+    # the release (a few % of the heat): the design's model, through the same quartic
+    fit_rel = np.polyfit(temps, np.asarray(energies(temps)[2], float).ravel(), 4)
 
     def power(temp):
-        e_rel = float(np.asarray(energies(np.array([temp]))[2])[0])   # the release: the design's model
         held = on - np.polyval(fit_t, temp)
-        return (np.polyval(fit_e, temp) + i2(temp) * r_coil(temp) * held + e_rel) / on
+        return (np.polyval(fit_e, temp) + i2(temp) * r_coil(temp) * held + np.polyval(fit_rel, temp)) / on
     hot, cool = ivp_orbit(power, amb, c["coolest_c"], on, drive.duty.off_time, drive.thermal.resistance,
                           drive.thermal.capacity, 60)
     # (60 cycles are 1.2 s of a 30 s time constant: from the design's coolest point a 0.1 %
