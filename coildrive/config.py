@@ -1497,8 +1497,10 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                  supply: Supply, hold: Hold, pull_in: PullIn, armature: Armature | None,
                  duty) -> None:
     """What the boosted peak (``supply.boost``) is modelled with: a linear coil, a low-side
-    or a high-side switch, a diode/zener/resistor freewheel, a stiff main supply, a
-    voltage-mode open-loop hold, a peak that ends at its threshold, no moving armature.
+    or a high-side switch, a diode/zener/resistor freewheel (split decay too) or a clamp on
+    a low-side switch, a stiff main supply, a PWM
+    hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
+    mode), a peak that ends at its threshold, no moving armature.
     Anything else is refused in one line."""
     if not supply.boosted:
         return
@@ -1512,29 +1514,30 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key = "coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance"
         why = "an eddy-current term"
     elif switch.topology == "full_bridge":
-        key, why = "switch.topology", "a full bridge (only a low-side or a high-side switch)"
-    elif freewheel.type == "clamp":
-        key, why = "freewheel.type", "a clamp across the switch"
+        key, why = "switch.topology", ("a full bridge (only a low-side or a high-side switch: a bridge's "
+                                       "fast decay would return the coil's energy into the boost rail)")
+    elif freewheel.type == "clamp" and switch.topology != "low_side":
+        key, why = "freewheel.type", "a clamp across a high-side switch (a clamp on a low-side switch only)"
         source = fw_origins.get("type", source)
-    elif freewheel.split_decay:
-        key, why = "freewheel.split_decay", "split decay"
-        source = fw_origins.get("split_decay", source)
     elif supply.droops:
         key, why = "supply.source_resistance", "a drooping main supply"
-    elif _open_loop_refusal(hold, armature):
-        key, why = _open_loop_refusal(hold, armature)
+    elif hold.mode == "latch":
+        key, why = "hold.mode", "a latching coil"
+    elif armature is not None:
+        key, why = "armature", "a moving armature"
     elif pull_in.compensate:
-        key, why = "pull_in.compensate", "a supply-compensated peak (the boosted peak ends at its threshold)"
+        key, why = "pull_in.compensate", ("a supply-compensated peak (the boosted peak runs from the boost, "
+                                          "not the main supply, and ends at its threshold: nothing to compensate)")
     elif pull_in.settle_time > 0:
-        key, why = "pull_in.settle_time", "a settle time (the boosted peak ends at its threshold)"
-    elif duty is not None:
-        key, why = "duty", "an on/off cycle"
+        key, why = "pull_in.settle_time", ("a settle time (the boosted peak ends at its current threshold, "
+                                           "not at a time after the pull-in)")
     if why is not None:
         raise InputError(source, key, f"the boosted peak (supply.boost) is not modelled with {why}: "
                          "expected boost left out, or a linear coil, a low-side or high-side switch, a "
-                         "diode/zener/resistor freewheel without split decay, a stiff main supply, a "
-                         "voltage-mode open-loop hold, a peak without compensate or settle_time, no "
-                         "[armature] and no [duty]")
+                         "diode/zener/resistor freewheel (split decay too; a clamp on a low-side "
+                         "switch), a stiff main supply, a "
+                         "voltage-mode or current-mode hold, a peak without compensate or settle_time, no "
+                         "[armature]")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,

@@ -250,9 +250,9 @@ def _variant(tmp_path, name, old, new, board=None):
 
 REFUSALS = [
     ("bridge", None, None, "bridge-m32-fast", "switch.topology"),
-    ("clamp", 'type = "diode"\ndiode_drop = "0.8 V"', 'type = "clamp"\nclamp_voltage = "75 V"', None,
+    ("clamp-high-side", 'type = "diode"\ndiode_drop = "0.8 V"', 'type = "clamp"\nclamp_voltage = "75 V"',
+     "sourcing-hs-zener",
      "freewheel.type"),
-    ("current-mode", "[hold]", '[hold]\nmode = "current"\nband = "0.1 A"', None, "hold.mode"),
     ("droop", 'max = "16 V"', 'max = "16 V"\nsource_resistance = "0.05 ohm"\ncapacitance = "1 mF"', None,
      "supply.source_resistance"),
     ("settle", "margin = 1.5", 'margin = 1.5\nsettle_time = "1 ms"', None, "pull_in.settle_time"),
@@ -276,12 +276,10 @@ def test_unmodelled_combinations_refused_in_one_line(tmp_path, case):
     assert "\n" not in line and key in line, line
 
 
-def test_monte_carlo_and_another_drives_firmware_refused(tmp_path):
-    """The Monte Carlo is refused for a boosted peak; emulate --firmware with a driver folder
-    generated for a drive without a boost (the reference C driver runs a boost only when
-    its header declares one: tests/test_boost_firmware.py) is refused before building."""
-    out = run_cli("design", str(EXAMPLE), "--samples", "100")
-    assert out.returncode == 2 and "supply.boost" in out.stderr, out.stderr
+def test_another_drives_firmware_refused(tmp_path):
+    """emulate --firmware with a driver folder generated for a drive without a boost (the
+    reference C driver runs a boost only when its header declares one:
+    tests/test_boost_firmware.py) is refused before building."""
     assert run_cli("firmware-driver", str(EXAMPLES / "demo-valve.toml"), "--out", str(tmp_path / "demo")).returncode == 0
     out = run_cli("emulate", str(EXAMPLE), "--firmware", str(tmp_path / "demo"), "--duration", "0.1")
     assert out.returncode == 2 and "supply.boost" in out.stderr and out.stderr.strip().count("\n") == 0, out.stderr

@@ -113,6 +113,12 @@ class DriverView:
             raise InputError(d.drive.source or d.drive.name, "supply.boost",
                              "the boost never reaches the threshold at the worst corner (see the "
                              "boost_threshold check), expected a boost that does for firmware-driver")
+        if self.boost and self.regulation in ("current", "closed_loop"):
+            key = "hold.mode" if self.regulation == "current" else "hold.regulation"
+            raise InputError(d.drive.source or d.drive.name, key,
+                             f"{self.regulation!r} after a boosted peak: this driver runs a boosted "
+                             "peak before a fixed or supply-table hold only, expected those for "
+                             "firmware-driver and emulate --firmware")
         if self.regulation not in ("fixed", "supply_table", "current", "closed_loop"):
             raise InputError(d.drive.source or d.drive.name, "hold.regulation",
                              f"{self.regulation!r}: this driver runs the fixed, supply-table, "

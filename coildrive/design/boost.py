@@ -82,6 +82,15 @@ def firmware_peak(design, supply: float, coil_temp: float, r_factor: float = 1.0
     return min(t, design.pull_in.peak_time_s or 0.0)
 
 
+def peak_in_force(design, supply: float, coil_temp: float, r_factor: float = 1.0,
+                  l_factor: float = 1.0) -> float:
+    """The peak (s) a design's firmware runs at one point: the boosted peak's
+    :func:`firmware_peak`, else the designed peak time (0 without one)."""
+    if design.boost is None or not design.pull_in.peak_time_s:
+        return design.pull_in.peak_time_s or 0.0
+    return firmware_peak(design, supply, coil_temp, r_factor, l_factor)
+
+
 def _seen(drive: Drive, b: model.Boost) -> np.ndarray:
     """When the firmware sees the threshold at the latest (s; ``inf`` where never): the
     highest trip current (the chain reading low), one conversion late."""
@@ -95,6 +104,39 @@ def slowest_peak(drive: Drive, lp) -> np.ndarray:
     return _seen(drive, _boost(drive, lp, lp.inductance, False))
 
 
+def peak_heat(drive: Drive, lp, peak_time) -> np.ndarray:
+    """J the coil's copper takes in one boosted peak at the points of ``lp``: ``R_coil int
+    i^2 dt`` (:func:`coildrive.model.boost.square_integral`) from switch-on until the
+    firmware sees the threshold at the latest, or ``peak_time`` s (the time-out) if sooner
+    -- from the boost at its lowest (the longest peak) and at its highest (the most
+    current), the larger."""
+    heat = np.zeros(np.shape(lp.r_coil))
+    for high in (False, True):
+        b = _boost(drive, lp, lp.inductance, high)
+        t = np.minimum(_seen(drive, b), peak_time)
+        heat = np.maximum(heat, lp.r_coil * model.square_integral(t, b))
+    return heat
+
+
+def shortest_peak(drive: Drive, lp, peak_time) -> np.ndarray:
+    """The shortest boosted peak at the points of ``lp`` (s): the boost at its highest until
+    the firmware sees the threshold, or ``peak_time`` s if sooner. The hold that follows
+    runs for the rest of an on-time, so its heat takes this (the longest hold)."""
+    return np.minimum(_seen(drive, _boost(drive, lp, lp.inductance, True)), peak_time)
+
+
+def sampled_pull_in(drive: Drive, res, v_factor, c_factor):
+    """``res`` (evaluated points) with each point's pull-in time from its own boost: the
+    boost voltage x ``v_factor`` and its capacitance x ``c_factor`` (arrays over the
+    points; the tolerance Monte Carlo draws them within ``boost_tolerance`` and
+    ``boost_capacitance_tolerance``)."""
+    s = drive.supply
+    lp = res.loop
+    b = model.boost(s.boost * np.asarray(v_factor, float), s.boost_capacitance * np.asarray(c_factor, float),
+                    lp.r_on + s.boost_resistance, lp.inductance)
+    return dataclasses.replace(res, pull_in_time=model.threshold_time(drive.pull_in.current, b))
+
+
 def end_current(drive: Drive, lp) -> np.ndarray:
     """The highest current at the end of the peak (A) at each point: the boost at its
     highest, up to the highest trip current, one conversion late."""
@@ -104,24 +146,34 @@ def end_current(drive: Drive, lp) -> np.ndarray:
                     model.highest_current(b))
 
 
+def _release_loop(res):
+    """The loop a turn-off goes through at the points of ``res``: with split decay the
+    release's (the bypass open, the fast path: the higher switch voltage), else the hold's."""
+    return res.release_loop if res.release_loop is not None else res.loop
+
+
 def _turn_off_voltage(drive: Drive, lp, v_top, current) -> np.ndarray:
     """The low-side switch's voltage at the end of the peak: the top of the coil at
-    ``v_top`` V plus the freewheel path's voltage at ``current`` A."""
+    ``v_top`` V plus the freewheel path's voltage at ``current`` A. A clamp across the
+    switch holds it at the clamp voltage whatever the rail (the boost switch opens with
+    it; the ``boost_clamp`` check wants the clamp above the boost either way)."""
+    if drive.freewheel.type == "clamp":
+        return np.broadcast_to(lp.switch_voltage(drive, current), np.shape(current)) + 0.0 * np.asarray(v_top, float)
     return np.asarray(v_top, float) + lp.switch_voltage(drive, current) - lp.supply
 
 
 def boosted_points(drive: Drive, res):
     """``res`` (:class:`~coildrive.design.evaluate.PointResults`, the points with the most
     current) with the boosted peak's highest end current, and the switch voltage of its
-    turn-off from the boost at full charge. (A boosted peak has one freewheel path: no
-    split decay, no bridge.)"""
+    turn-off from the boost at full charge (with split decay through the release's fast
+    path: a peak cut short or a trip opens the bypass too)."""
     if not drive.supply.boosted:
         return res
-    lp = res.loop
+    lp, rel = res.loop, _release_loop(res)
     i_end = end_current(drive, lp)
     interrupt = np.maximum(i_end, res.hold.i_max)
-    v_sw = lp.switch_voltage(drive, interrupt)
-    v_boost = _turn_off_voltage(drive, lp, drive.supply.boost * (1.0 + drive.supply.boost_tolerance), i_end)
+    v_sw = rel.switch_voltage(drive, interrupt)
+    v_boost = _turn_off_voltage(drive, rel, drive.supply.boost * (1.0 + drive.supply.boost_tolerance), i_end)
     return dataclasses.replace(res, peak_end_current=i_end, interrupt_current=interrupt,
                                peak_switch_voltage=np.maximum(v_sw, v_boost))
 
@@ -134,7 +186,7 @@ def boosted_turn_offs(drive: Drive, grid: CornerGrid, res, offs: list[dict]) -> 
     path across the coil takes the coil's energy whatever the rail.)"""
     if not drive.supply.boosted:
         return offs
-    lp = res.loop
+    lp = _release_loop(res)
     v_top = drive.supply.boost * (1.0 + drive.supply.boost_tolerance)
     out = []
     for o in offs:
@@ -176,8 +228,9 @@ def boost_result(drive: Drive, grid: CornerGrid, res, rate: float) -> BoostResul
     energy = np.maximum(model.energy_drawn(t_end, fast), model.energy_drawn(t_low, slow))
     k_e, k_i = int(np.argmax(energy)), int(np.argmax(i_end))
     v_top = s.boost * (1.0 + s.boost_tolerance)
-    v_sw = _turn_off_voltage(drive, lp, v_top, i_end)
-    v_sw_end = _turn_off_voltage(drive, lp, v_end, i_end)
+    rel = _release_loop(res)
+    v_sw = _turn_off_voltage(drive, rel, v_top, i_end)
+    v_sw_end = _turn_off_voltage(drive, rel, v_end, i_end)
     k_v = int(np.argmax(v_sw))
     timeout = (math.ceil(float(t_slow[k_slow]) * drive.pull_in.margin * rate - 1e-9) + 1) if reached else None
     recharge = interval = None
@@ -209,7 +262,8 @@ def boost_result(drive: Drive, grid: CornerGrid, res, rate: float) -> BoostResul
 
 def boost_checks(drive: Drive, b: BoostResult | None) -> list[Check]:
     """The threshold is reached at every corner and fits the ADC; the boost capacitor stays
-    above the main supply until the threshold; the switch takes the boost's turn-off."""
+    above the main supply until the threshold; with an on/off cycle (``[duty]``) the boost
+    recharges between switch-ons; the switch takes the boost's turn-off."""
     if b is None:
         return []
     out = []
@@ -231,6 +285,24 @@ def boost_checks(drive: Drive, b: BoostResult | None) -> list[Check]:
                          f"end of the peak at {b.lowest_boost_corner}, main supply {b.main_supply_there_v:.4g} V"
                          + ("" if ok else " -- the main supply would take over before the threshold: a "
                             "larger boost capacitance (supply.boost_capacitance)")))
+    if drive.duty is not None and b.min_interval_s is not None:
+        ok = b.min_interval_s <= drive.duty.period
+        out.append(Check("boost_recharge", ok,
+                         f"the boost puts the peak's {b.energy_j:.4g} J back at {b.power_w:.4g} W in "
+                         f"{b.recharge_time_s * 1e3:.4g} ms: switch-on to switch-on needs at least "
+                         f"{b.min_interval_s * 1e3:.4g} ms (the longest peak + the recharge), the on/off "
+                         f"cycle gives {drive.duty.period * 1e3:.4g} ms ({drive.duty.actuation_rate:.4g} "
+                         "actuations/s)" + ("" if ok else " -- the next peak would start from a partly "
+                                            "charged boost: a higher supply.boost_power or a longer "
+                                            "duty.off_time")))
+    if drive.freewheel.type == "clamp":
+        v_c = drive.freewheel.clamp_voltage
+        ok = v_c > b.boost_max_v
+        out.append(Check("boost_clamp", ok,
+                         f"the clamp's {v_c:.4g} V against the boost at full charge {b.boost_max_v:.4g} V: "
+                         "a turn-off while the boost switch is still on decays at V_clamp - V_boost"
+                         + ("" if ok else " -- not at all: the current keeps rising through the clamp "
+                            "until the boost switch opens; a clamp_voltage above the boost")))
     sw = drive.switch
     limit = sw.max_voltage * sw.derating
     ok = b.switch_voltage_v <= limit

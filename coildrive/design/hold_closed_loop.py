@@ -38,6 +38,7 @@ from ..model.thermal import settle_temperature
 from . import loop_gains
 from .loop_duty import (MAX_DUTY, MIN_ON_TIME_S, codes_per_amp, reading_range, regulated_duty,
                         settled_duty)
+from .boost import boost_cautions, boost_checks, boost_result, boosted_points, boosted_turn_offs, peak_in_force
 from .checks import base_checks
 from .corners import nominal_point
 from .envelope import envelope, heating_grid, hottest, tolerances
@@ -144,6 +145,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                        short, reuse=first, **at)
     res = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor, run_high, f,
                    long_, **at)
+    res = boosted_points(drive, res)   # a boosted peak's highest end current and turn-off
     loss = _losses(drive, res, f)
     corners = corners_of(env, res_low, loss, high=res, duty=run_high, drive=drive)
 
@@ -190,7 +192,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
         split_decay_saving=None, regulation="closed_loop", closed_loop=loop_result)
     thresholds = adc_thresholds(drive, res, res_low, hold.min_mean_current_a, env)
     peak_end = np.asarray(res.peak_end_current, float)
-    offs = turn_offs(drive, env, res, peak_end, thresholds.trip_current_a)
+    offs = boosted_turn_offs(drive, env, res, turn_offs(drive, env, res, peak_end, thresholds.trip_current_a))
     release = release_result(drive, env, res, offs)
     topo = topology_result(drive, env, res, peak_end, thresholds.trip_current_a)
     pull_in = pull_in_result(drive, env, res, pk, shortest_peak_current(drive, res_low, short))
@@ -214,12 +216,16 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     notes += thermal_cautions(thermal)
     sup = drooping_bus(drive, env, res, long_, run_high, thresholds)
     checks += supply_checks(sup)
+    boost = boost_result(drive, env, res_low, board.tick.rate) if drive.supply.boosted else None
+    checks += boost_checks(drive, boost)
+    notes += boost_cautions(boost)
     points = plot_points(drive, pk, env, nom, res_low, f)
     return Design(drive=drive, pull_in=pull_in, hold=hold, release=release, timer=timer_result,
                   adc=thresholds, duty_table=DutyTable([], [], []), corners=corners, nominal=nominal,
                   checks=checks, cautions=notes, monte_carlo=None, input_hash=drive.input_hash(),
                   worst_corner_index=pk.k_pull, armature=arm, split_decay=split,
                   actuation_points=points, peak_table=None, topology=topo, thermal_cycle=thermal, supply=sup,
+                  boost=boost,
                   rise_check=rise_check(drive, env, res, f), seat_check=seat_check(drive, env, res_low),
                   eddy=eddy_result(drive, env, res))
 
@@ -343,5 +349,5 @@ def actuation(design: Design, supply: float, coil_temp: float, hold_time: float,
     drive = design.drive
     f = design.hold.frequency_hz
     duty = settled_duty(design, supply, coil_temp, r_factor, l_factor)
-    return waveform(drive, supply, coil_temp, design.pull_in.peak_time_s or 0.0, duty, f, hold_time,
-                    r_factor, l_factor, points, label=label)
+    return waveform(drive, supply, coil_temp, peak_in_force(design, supply, coil_temp, r_factor, l_factor),
+                    duty, f, hold_time, r_factor, l_factor, points, label=label)

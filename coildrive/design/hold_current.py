@@ -57,6 +57,8 @@ from .corners import CornerGrid, corner_grid, nominal_point
 from .evaluate import PointResults, release_figures, switch_voltage_peak
 from .figures import (adc_code, adc_thresholds, corners_of, hold_spread, loss_figures, pull_in_result,
                       release_result, saving_figures, slow_hold_drive)
+from .boost import (boost_cautions, boost_checks, boost_result, boosted_points, boosted_turn_offs,
+                    peak_in_force)
 from .diagnostics import rise_check, seat_check
 from .eddy import eddy_result
 from .peak import plan_peak, shortest_peak_current
@@ -413,6 +415,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     heat_peak, peak_time = peak_time, longer
     res, cm = evaluate_current(drive, th, grid.supply, grid.ambient, grid.r_factor, grid.l_factor,
                                peak_time, heat_peak)
+    res = boosted_points(drive, res)   # a boosted peak's highest end current and turn-off
     nom_grid = nominal_point(drive)
     nom, nom_cm = evaluate_current(drive, th, nom_grid.supply, nom_grid.ambient, nom_grid.r_factor,
                                    nom_grid.l_factor, peak_time, heat_peak)
@@ -432,7 +435,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
         split_decay_saving=_split_saving(drive, grid, res, cm, loss, fallback, peak_time),
         current_mode=result, thresholds=th, regulation="current")
     thresholds = adc_thresholds(drive, res, res, hold.min_mean_current_a, grid)
-    offs = turn_offs(drive, grid, res, res.peak_end_current, thresholds.trip_current_a)
+    offs = boosted_turn_offs(drive, grid, res,
+                             turn_offs(drive, grid, res, res.peak_end_current, thresholds.trip_current_a))
     release = release_result(drive, grid, res, offs)
     pull_in = pull_in_result(drive, grid, res, pk, shortest_peak_current(drive, res, pk.short_time))
 
@@ -461,6 +465,9 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     checks += thermal_checks(drive, pull_in.peak_time_s, thermal)
     sup = drooping_bus(drive, grid, res, pk.long_time, cm.duty, thresholds)
     checks += supply_checks(sup)
+    boost = boost_result(drive, grid, res, board.tick.rate) if drive.supply.boosted else None
+    checks += boost_checks(drive, boost)
+    notes += boost_cautions(boost)
     if thermal is not None and thermal.cycle is not None:
         notes[2] = cycle_caution(thermal)   # the envelope's hot coil is the cycle's
     notes += thermal_cautions(thermal)
@@ -473,7 +480,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     return dataclasses.replace(
         fallback, drive=drive, pull_in=pull_in, hold=hold, release=release, adc=thresholds,
         split_decay=split, corners=corners, nominal=nominal, checks=checks, cautions=notes,
-        actuation_points=points, topology=topo, thermal_cycle=thermal, supply=sup, input_hash=drive.input_hash(), worst_corner_index=k_pull,
+        actuation_points=points, topology=topo, thermal_cycle=thermal, supply=sup, boost=boost,
+        input_hash=drive.input_hash(), worst_corner_index=k_pull,
         rise_check=rise_check(drive, grid, res, fallback.timer.frequency_hz),
         seat_check=seat_check(drive, grid, res), eddy=eddy_result(drive, grid, res))
 
@@ -637,8 +645,8 @@ def actuation(design: Design, supply: float, coil_temp: float, hold_time: float,
     :func:`current_mode_actuation`; ``strict`` is there for the strategy interface: a
     current-mode hold has nothing to refuse)."""
     return current_mode_actuation(design.drive, design.hold.thresholds, supply, coil_temp,
-                                  design.pull_in.peak_time_s, hold_time, r_factor, l_factor,
-                                  points, label)
+                                  peak_in_force(design, supply, coil_temp, r_factor, l_factor),
+                                  hold_time, r_factor, l_factor, points, label)
 
 
 def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_temp: float,
@@ -650,8 +658,8 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
     With split decay the hold's off segments take the slow path and the release the
     fast one, the bypass opening as ``freewheel.bypass_lead`` says (within the last
     on-time, or after the turn-off for a negative lead; a ``bypass_on`` column)."""
-    from ..model.waveform import (one_point, peak_samples, release_waveform, split_release,
-                                  split_waveform)
+    from ..model.waveform import (boost_columns, one_point, peak_samples, release_waveform,
+                                  split_release, split_waveform)
 
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
     if isinstance(lp.inductance, EddyCoil):   # the sensed current steps at each edge
@@ -708,7 +716,9 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
         t_last, i_last = last_on if last_on else (t_off_edge, i)
         t_open, zero = split_release(drive, lp, fast, t_off_edge, i, t_last, i_last, ts[-1],
                                      big, ts, cs, ons)
-        return split_waveform(drive, lp, fast, supply, ts, cs, ons, t_open,
-                              {"on": 0.0, "hold": peak_time, "off": t_off_edge, "zero": zero,
-                               "bypass_open": t_open}, label)
-    return release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_off_edge, i, big, label)
+        w = split_waveform(drive, lp, fast, supply, ts, cs, ons, t_open,
+                           {"on": 0.0, "hold": peak_time, "off": t_off_edge, "zero": zero,
+                            "bypass_open": t_open}, label)
+        return boost_columns(drive, w, supply, peak_time, r_on, ind)
+    w = release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_off_edge, i, big, label)
+    return boost_columns(drive, w, supply, peak_time, r_on, ind)

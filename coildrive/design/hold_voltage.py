@@ -64,9 +64,6 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     :func:`coildrive.design.montecarlo.monte_carlo`).
     """
     board = drive.board
-    if samples > 0 and drive.supply.boosted:
-        raise InputError(drive.source, "supply.boost", "the tolerance Monte Carlo does not model the "
-                         "boosted peak yet: expected no --monte-carlo with supply.boost")
     timer = timer_for(drive)
     f_hold = timer.frequency_hz
     period = timer.period_ticks

@@ -3,7 +3,9 @@
 Supply and ambient are drawn uniformly over their ranges; coil resistance and
 inductance uniformly within their tolerance, or normally with the tolerance read as
 3 sigma (clipped at the tolerance) when the drive file says ``tolerance_distribution =
-"normal"``. Each sample is evaluated with the same closed-form model as the corners (the
+"normal"``; a boosted peak's boost voltage and capacitance likewise within their
+tolerances (each sample's pull-in from its own boost; its peak is the time-out, which
+ends it only if the threshold -- above the pull-in current -- comes later). Each sample is evaluated with the same closed-form model as the corners (the
 coil at the temperature a long hold settles at there, or with an on/off cycle and a heat
 capacity the hottest over the cycle).
 
@@ -19,6 +21,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..config import Drive
+from .boost import sampled_pull_in
 from .bridge_bus import release_time
 from .evaluate import evaluate
 from .thermal_cycle import cycle_states, cycling
@@ -63,6 +66,14 @@ def monte_carlo(drive: Drive, duty: float, frequency: float, peak_time: float, s
     ambient = rng.uniform(drive.ambient.min, drive.ambient.max, samples)
     rf = _factors(rng, c.resistance_tolerance, samples, c.tolerance_distribution)
     lf = _factors(rng, c.inductance_tolerance, samples, c.tolerance_distribution)
+    s_ = drive.supply
+    if s_.boosted:   # each sample's own boost (drawn after the rest: other drives' streams stay)
+        bf = _factors(rng, s_.boost_tolerance, samples, c.tolerance_distribution)
+        cf = _factors(rng, s_.boost_capacitance_tolerance, samples, c.tolerance_distribution)
+
+    def boosted(res, sl=slice(None)):
+        """``res`` with each sample's pull-in from its own boost (unchanged without one)."""
+        return sampled_pull_in(drive, res, bf[sl], cf[sl]) if s_.boosted else res
     duty_of = duty if callable(duty) else (lambda s: duty)
     peak_of = peak_time if callable(peak_time) else (lambda s: peak_time)
     def coil_temp(s, amb, r, l):
@@ -73,16 +84,16 @@ def monte_carlo(drive: Drive, duty: float, frequency: float, peak_time: float, s
         return cycle_states(drive, s, amb, r, l, duty_of(s), frequency, None, peak_of(s)).hottest
 
     if chunk is None:
-        values = _figures(drive, evaluate(drive, supply, ambient, rf, lf, duty_of(supply), frequency,
-                                          peak_of(supply), coil_temp=coil_temp(supply, ambient, rf, lf)),
+        values = _figures(drive, boosted(evaluate(drive, supply, ambient, rf, lf, duty_of(supply), frequency,
+                                                  peak_of(supply), coil_temp=coil_temp(supply, ambient, rf, lf))),
                           peak_of(supply))
     else:
         values = tuple(np.empty(samples) for _ in FIGURES)
         for start in range(0, samples, chunk):
             sl = slice(start, min(start + chunk, samples))
             s = supply[sl]
-            res = evaluate(drive, s, ambient[sl], rf[sl], lf[sl], duty_of(s), frequency, peak_of(s),
-                           coil_temp=coil_temp(s, ambient[sl], rf[sl], lf[sl]))
+            res = boosted(evaluate(drive, s, ambient[sl], rf[sl], lf[sl], duty_of(s), frequency, peak_of(s),
+                                   coil_temp=coil_temp(s, ambient[sl], rf[sl], lf[sl])), sl)
             for out, got in zip(values, _figures(drive, res, peak_of(s))):
                 out[sl] = got
     supply_all = supply

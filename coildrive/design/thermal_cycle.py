@@ -33,6 +33,8 @@ from ..model.rl import decay_integrals, decay_time, rise_integrals
 from ..model.thermal_cycle import chord, cycle_steady_state, heating, time_to_rise
 from ..units import format_si
 from ..model.thermal import settle_temperature
+from .boost import peak_heat as boosted_peak_heat
+from .boost import shortest_peak
 from .result import ELEMENT_NAMES, Check, ThermalCycleResult
 
 
@@ -67,7 +69,8 @@ def on_energies(drive: Drive, supply, r_factor, l_factor, duty, frequency, facto
     one actuation, ``(peak J, hold J, release J)``: the peak full on from zero for
     ``min(peak_time, on_time)`` s (through :func:`peak_inductance`; ``peak_time`` may be
     an array over the points), the hold's periodic steady state for the rest of the
-    on-time, the release from the top of the hold ripple to zero through the hold's
+    on-time (after a boosted peak, which ends at its threshold, the rest of the on-time
+    after its shortest length there), the release from the top of the hold ripple to zero through the hold's
     freewheel path (with split decay the slow one: the longer decay, the more heat; a full
     bridge's release path, as its hold path never reaches zero). ``state``: the hold's
     steady state as a function of the loop (anything with ``rms`` and ``i_max`` A; the
@@ -85,7 +88,9 @@ def on_energies(drive: Drive, supply, r_factor, l_factor, duty, frequency, facto
         # current to zero: its release is the fast decay into the bus
         rel = loop(drive, supply, temp, r_factor, l_factor, path="release", **factors) \
             if full_bridge(drive) else lp
-        peak, hold = peak_heat(drive, lp, t_pk), hold_heat(ss, lp.r_coil) * t_hold
+        # a boosted peak ends at its threshold: the hold heats for the rest of the on-time
+        held = t_on - shortest_peak(drive, lp, t_pk) if drive.supply.boosted else t_hold
+        peak, hold = peak_heat(drive, lp, t_pk), hold_heat(ss, lp.r_coil) * held
         if isinstance(lp.inductance, EddyCoil):
             # the core's eddy loss heats the coil with the copper, the release's to the end
             # of the flux (its tail through R_e after the freewheel path blocks)
@@ -108,7 +113,10 @@ def hold_heat(ss, r_coil):
 
 def peak_heat(drive: Drive, lp, peak_time):
     """J that heats the coil in a peak full on from zero for ``peak_time`` s at the loop
-    ``lp``: the copper's and an eddy term's core loss."""
+    ``lp``: the copper's and an eddy term's core loss; a boosted peak's from the boost to
+    its threshold (:func:`coildrive.design.boost.peak_heat`)."""
+    if drive.supply.boosted:
+        return boosted_peak_heat(drive, lp, peak_time)
     if isinstance(lp.inductance, EddyCoil):
         e = lp.inductance
         if drive.armature is None:
@@ -251,7 +259,9 @@ def cycle_result(drive: Drive, pts: HeatPoints, peak_time: float, offs: list[dic
                freewheel=None, cold_start=None, warm_start=None)
     if cyc is not None:
         out.update(on_time_s=cyc.on_time, off_time_s=cyc.off_time, actuation_rate_hz=cyc.actuation_rate)
-        hold_share = max(cyc.on_time - peak_time, 0.0) / cyc.period
+        # a boosted peak may end well before its time-out: its hold takes the whole on-time
+        # (the upper bound)
+        hold_share = max(cyc.on_time - (0.0 if drive.supply.boosted else peak_time), 0.0) / cyc.period
         end_of_hold = offs[0]
         release_w = {n: e * cyc.actuation_rate for n, e in end_of_hold["elements_j"].items()}
         names = list(release_w) + [n for n in hold_elements_w if n not in release_w]

@@ -120,6 +120,13 @@ def energy_drawn(t, b: Boost) -> np.ndarray:
     return np.where(b.ideal, b.v_b * charge, 0.5 * b.c * (b.v_b**2 - v**2))
 
 
+def square_integral(t, b: Boost) -> np.ndarray:
+    """``int_0^t i^2 dt`` (A^2 s) of the rise from rest: by the energy balance of the module
+    docstring, ``(E_drawn(t) - 1/2 L i(t)^2) / R`` -- closed form, no quadrature."""
+    i = state(t, b)[0]
+    return (energy_drawn(t, b) - 0.5 * b.l * i**2) / b.r
+
+
 def recharge_time(energy, power) -> np.ndarray:
     """Time (s) to put ``energy`` J back at a constant charging ``power`` W: ``E / P``."""
     return np.asarray(energy, float) / np.asarray(power, float)

@@ -180,13 +180,23 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
     fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") if full_bridge(drive) else lp
     w = release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_offedge, i_off, big, label,
                          release_lp=fast)
-    if drive.supply.boosted:
-        w = dataclasses.replace(w, boost_voltage=boost_model.voltage_trace(
-            w.time, peak_time, nominal_boost(drive, r_on, ind), drive.supply.boost_power))
-        if w.node_voltage is not None:   # a high-side switch: fed from the boost rail in the peak
-            rail = np.where((w.time <= peak_time) & (w.switch_on == 1),
-                            w.boost_voltage - w.current * drive.supply.boost_resistance, supply)
-            w = dataclasses.replace(w, **node_columns(drive, rail, w.current, w.switch_on, w.switch_voltage))
+    return boost_columns(drive, w, supply, peak_time, r_on, ind)
+
+
+def boost_columns(drive: Drive, w: "Waveform", supply: float, peak_time: float, r_on: float,
+                  ind: float) -> "Waveform":
+    """``w`` with a boosted peak's columns (unchanged without a boost): the boost
+    capacitor's voltage (:func:`coildrive.model.boost.voltage_trace`) and, on a high-side
+    switch, the node fed from the boost rail in the peak of ``peak_time`` s; ``supply`` V
+    the main supply, ``r_on`` ohm and ``ind`` H the on-loop."""
+    if not drive.supply.boosted:
+        return w
+    w = dataclasses.replace(w, boost_voltage=boost_model.voltage_trace(
+        w.time, peak_time, nominal_boost(drive, r_on, ind), drive.supply.boost_power))
+    if w.node_voltage is not None:   # a high-side switch: fed from the boost rail in the peak
+        rail = np.where((w.time <= peak_time) & (w.switch_on == 1),
+                        w.boost_voltage - w.current * drive.supply.boost_resistance, supply)
+        w = dataclasses.replace(w, **node_columns(drive, rail, w.current, w.switch_on, w.switch_voltage))
     return w
 
 
@@ -420,9 +430,10 @@ def _split_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_tim
     ons.append(on_hold)
     t_open, zero = split_release(drive, lp, fast, t_cut, i_cut, t_last, float(starts[-1]), t_hold,
                                  big, ts, cs, ons)
-    return split_waveform(drive, lp, fast, supply, ts, cs, ons, t_open,
-                          {"on": 0.0, "hold": peak_time, "off": t_cut, "zero": zero,
-                           "bypass_open": t_open}, label)
+    w = split_waveform(drive, lp, fast, supply, ts, cs, ons, t_open,
+                       {"on": 0.0, "hold": peak_time, "off": t_cut, "zero": zero,
+                        "bypass_open": t_open}, label)
+    return boost_columns(drive, w, supply, peak_time, r_on, ind)
 
 
 def split_release(drive: Drive, lp, fast, t_cut: float, i_cut: float, t_last: float,
