@@ -150,6 +150,19 @@ class _Mixed:
                 np.concatenate([self.fast.off_terminal(fast_m), slow_c], axis=1), flag)
 
 
+def _freewheel_samples(pt: _Point, t0: float, i0: float, t_knee: float, t_end: float, big: int,
+                       pieces) -> tuple[float, float]:
+    """Append a freewheel through ``pt``'s off path from ``i0`` A at ``t0`` s to the sample
+    pieces ``(time, magnetising, terminal, switch_on, fast)``: ``big`` + 1 samples up to
+    ``t_knee`` s (where the path stops conducting) and as many after it, to ``t_end`` s;
+    returns the end ``(time s, magnetising current A)``."""
+    td = np.unique(np.concatenate([np.linspace(0.0, t_knee, big + 1), np.linspace(t_knee, t_end, big + 1)]))
+    md = pt.decay(i0, td)
+    for piece, x in zip(pieces, (t0 + td, md, pt.off_terminal(md), np.zeros_like(td), np.zeros_like(td))):
+        piece.append(x)
+    return t0 + float(td[-1]), float(md[-1])
+
+
 def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: float,
               hold_time: float, points: int, release: Loop | None = None, lead: float = 0.0):
     """The sample pieces of one actuation: ``(time, terminal current, magnetising
@@ -159,7 +172,9 @@ def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: 
     operating point whose inductance is an :class:`~coildrive.model.eddy.EddyCoil`.
     ``release``: the loop of the release (split decay's fast path; ``None``: ``lp``'s),
     its bypass opening ``lead`` s before the final turn-off (a sample there when that is
-    inside the last on-time; the pieces are then not in time order)."""
+    inside the last on-time; the pieces are then not in time order), or ``-lead`` s after
+    it (the flux decaying through the slow path until then, and through ``R_e`` once
+    that blocks)."""
     e = lp.inductance[...]
     v, r_on = (float(np.ravel(x)[0]) for x in (lp.v_on, lp.r_on))
     big = 40 * points
@@ -218,14 +233,15 @@ def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: 
         cs.append(np.atleast_1d(pt.on_terminal(m_open)))
         ons.append(np.ones(1))
         fasts.append(np.zeros(1))
-    pt = pt if release is None else _Point(release, i_cut)
-    tz = float(pt.conduction(i_cut))
-    t_end = max(pt.time_to(i_cut, TAIL_FRACTION * i_cut), tz)
-    td = np.unique(np.concatenate([np.linspace(0.0, tz, big + 1), np.linspace(tz, t_end, big + 1)]))
-    md = pt.decay(i_cut, td)
-    ts.append(t_cut + td)
-    ms.append(md)
-    cs.append(pt.off_terminal(md))
-    ons.append(np.zeros_like(td))
-    fasts.append(np.zeros_like(td))
-    return ts, cs, ms, ons, fasts, t_cut, t_cut + tz
+    t_rel, i_rel, t_stop = t_cut, i_cut, None
+    if release is not None and lead < 0:   # a late bypass: the slow path for -lead s first
+        t_stop = min(-lead, float(pt.conduction(i_cut)))   # the slow path may block in the lag
+        t_rel, i_rel = _freewheel_samples(pt, t_cut, i_cut, t_stop, -lead, big, (ts, ms, cs, ons, fasts))
+    pt = pt if release is None else _Point(release, i_rel)
+    tz = float(pt.conduction(i_rel))
+    _freewheel_samples(pt, t_rel, i_rel, tz, max(pt.time_to(i_rel, TAIL_FRACTION * i_cut), tz, 0.0), big,
+                       (ts, ms, cs, ons, fasts))
+    # the terminal current stops where the fast path stops conducting, or (a late bypass
+    # opening on a flux below the fast path's block current) where the slow path did
+    t_zero = t_rel + tz if tz > 0 or t_stop is None else t_cut + t_stop
+    return ts, cs, ms, ons, fasts, t_cut, t_zero
