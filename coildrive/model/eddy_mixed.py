@@ -83,6 +83,29 @@ def fast_part(e: EddyCoil, t, b, r_f, v_f):
     return (np.where(late, tail_end, end), tc, q, s, w + re_ * s_tail, sm + s_tail)
 
 
+def _assemble(tc, a, b, c, on, fast, slow, t_f, t_on, t_s, v_on, r_on, r_s, v_f, r_f, re_, terminal_fast):
+    """The orbit's fields (rows in :class:`EddyMixedOrbit`'s order) from its currents ``a``,
+    ``b``, ``c`` (A), the fast part's conduction ``tc`` (s) and the magnetising current's
+    ``(int i_m dt, int i_m^2 dt)`` over the on, fast and slow segments; ``terminal_fast``:
+    the fast part's terminal ``(q, s, eddy J, int i_m^2 dt)`` when it was solved with its
+    block (:func:`fast_part`), else ``fast`` is the conducting segment's."""
+    q_on, s_on, w_on = eddy._terminal_integrals(t_on, *on, v_on, r_on, re_)
+    if isinstance(terminal_fast, tuple):
+        q_f, s_f, w_f, sm_f = terminal_fast
+    else:
+        q_f, s_f, w_f = eddy._terminal_integrals(t_f, *fast, -v_f, r_f, re_)
+        sm_f = fast[1]
+    q_s, s_s, w_s = eddy._terminal_integrals(t_s, *slow, 0.0, r_s, re_)
+    has_slow = t_s > 0
+    q_s, s_s, w_s, sm_s = (np.where(has_slow, x, 0.0) for x in (q_s, s_s, w_s, slow[1]))
+    blocked = tc < t_f
+    t_max = eddy.terminal(b, v_on, r_on, re_)
+    end_fast = np.where(blocked, 0.0, eddy.terminal(c, -v_f, r_f, re_))
+    t_min = np.minimum(end_fast, np.where(has_slow, eddy.terminal(a, 0.0, r_s, re_), np.inf))
+    return np.array([a, b, c, blocked, tc + t_s, q_on, s_on, q_f, s_f, q_s, s_s, t_min, t_max,
+                     w_on + w_f + w_s, on[1] + sm_f + sm_s], dtype=float)
+
+
 def _period_map(e: EddyCoil, t_on, t_fast, t_slow, von_t, ron_t, r_f, v_f, rs_t):
     """``P(a)``: the magnetising current after one period from ``a`` A."""
     mag = e.magnetising
@@ -111,40 +134,52 @@ def mixed_orbit(e: EddyCoil, t_on, t_fast, t_slow, v_on, r_on, r_slow, v_fast, r
     rs_t = thevenin(0.0, r_s, re_)[1]
     ib = eddy.block_current(v_f, re_)
     a = np.zeros(n)
+    out = np.zeros((15, n))
     # the fast part conducting throughout: the plain coil's mixed orbit with the Thevenin pairs
     if isinstance(mag, FluxCoil):
         conducts = np.zeros(n, bool)
         k = np.flatnonzero(t_s > 0)
         if k.size:
             m = flux_mixed.mixed_orbit(mag[k], t_on[k], t_f[k], t_s[k], von_t[k], ron_t[k], rs_t[k], vf_t[k], rf_t[k])
-            conducts[k] = ~np.asarray(m.dcm) & (np.asarray(m.i_fast) >= ib[k])
-            a[k] = m.i_min
+            ok = ~np.asarray(m.dcm) & (np.asarray(m.i_fast) >= ib[k])
+            conducts[k[ok]] = True
+            j = k[ok]   # its magnetising integrals give the terminal ones (no segment solved again)
+            cols = (m.i_min[ok], m.i_max[ok], m.i_fast[ok], (m.charge_on[ok], m.square_on[ok]),
+                    (m.charge_fast[ok], m.square_fast[ok]), (m.charge_slow[ok], m.square_slow[ok]))
+            out[:, j] = _assemble(t_f[j], *cols, t_f[j], t_on[j], t_s[j], v_on[j], r_on[j], r_s[j], v_f[j],
+                                  r_f[j], re_[j], 0.0)
     else:
         with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
             a_c, _, c_c = flux_mixed.linear_start(t_on, t_f, t_s, von_t, ron_t, rs_t, vf_t, rf_t, mag)
         conducts = np.isfinite(a_c) & (c_c >= ib)
         a = np.where(conducts, a_c, 0.0)
-    rest = np.flatnonzero(~conducts)
+    if isinstance(mag, FluxCoil):
+        rest = np.flatnonzero(~conducts)
+        if rest.size:   # the period map's root
+            sub = e[rest]
+            p = _period_map(sub, t_on[rest], t_f[rest], t_s[rest], von_t[rest], ron_t[rest], r_f[rest],
+                            v_f[rest], rs_t[rest])
+            top = von_t[rest] / ron_t[rest]
+            x, _, hi, _, g_hi = falling_root(lambda x: p(x) - x, top * (1.0 - 1e-9), iterations)
+            a[rest] = np.where(g_hi == 0, hi, x)
+    else:   # a line's segments are closed forms: every point through the period map's pieces
+        rest = np.arange(n)
+        blocked = np.flatnonzero(~conducts)
+        if blocked.size:
+            sub = e[blocked]
+            p = _period_map(sub, t_on[blocked], t_f[blocked], t_s[blocked], von_t[blocked], ron_t[blocked],
+                            r_f[blocked], v_f[blocked], rs_t[blocked])
+            top = von_t[blocked] / ron_t[blocked]
+            x, _, hi, _, g_hi = falling_root(lambda x: p(x) - x, top * (1.0 - 1e-9), iterations)
+            a[blocked] = np.where(g_hi == 0, hi, x)
     if rest.size:
-        sub = e[rest]
-        p = _period_map(sub, t_on[rest], t_f[rest], t_s[rest], von_t[rest], ron_t[rest], r_f[rest],
-                        v_f[rest], rs_t[rest])
-        top = von_t[rest] / ron_t[rest]
-        x, _, hi, _, g_hi = falling_root(lambda x: p(x) - x, top * (1.0 - 1e-9), iterations)
-        a[rest] = np.where(g_hi == 0, hi, x)
-    b = branch_current(mag, t_on, a, von_t, ron_t)
-    c, tc, q_f, s_f, w_f, sm_f = fast_part(e, t_f, b, r_f, v_f)
-    qm, sm = branch_integrals(mag, t_on, a, b, von_t, ron_t)
-    q_on, s_on, w_on = eddy._terminal_integrals(t_on, qm, sm, v_on, r_on, re_)
-    qm_s, sm_s = branch_integrals(mag, t_s, c, a, 0.0, rs_t)
-    q_s, s_s, w_s = eddy._terminal_integrals(t_s, qm_s, sm_s, 0.0, r_s, re_)
-    slow = t_s > 0
-    q_s, s_s, w_s, sm_s = (np.where(slow, x, 0.0) for x in (q_s, s_s, w_s, sm_s))
-    blocked = tc < t_f
-    t_max = eddy.terminal(b, v_on, r_on, re_)
-    end_fast = np.where(blocked, 0.0, eddy.terminal(c, -v_f, r_f, re_))
-    end_slow = np.where(slow, eddy.terminal(a, 0.0, r_s, re_), np.inf)
-    t_min = np.minimum(end_fast, end_slow)
-    out = (a, b, c, blocked, tc + t_s, q_on, s_on, q_f, s_f, q_s, s_s, t_min, t_max,
-           w_on + w_f + w_s, sm + sm_f + sm_s)
+        sub, k = e[rest], rest
+        b = branch_current(sub.magnetising, t_on[k], a[k], von_t[k], ron_t[k])
+        c, tc, q_f, s_f, w_f, sm_f = fast_part(sub, t_f[k], b, r_f[k], v_f[k])
+        on = branch_integrals(sub.magnetising, t_on[k], a[k], b, von_t[k], ron_t[k])
+        slow = branch_integrals(sub.magnetising, t_s[k], c, a[k], 0.0, rs_t[k])
+        out[:, k] = _assemble(tc, a[k], b, c, on, None, slow, t_f[k], t_on[k], t_s[k], v_on[k], r_on[k],
+                              r_s[k], v_f[k], r_f[k], re_[k], (q_f, s_f, w_f, sm_f))
+    out = list(out)
+    out[3] = out[3] > 0.5
     return EddyMixedOrbit(*(np.reshape(x, shape) for x in out))
