@@ -138,7 +138,8 @@ def _reference(coil, a, t_on, t_fast, t_slow):
 def test_orbit_is_periodic_under_scipy(kind, case):
     """scipy (Radau): one period from the orbit's lowest magnetising current ends there
     again (1e-7 of the highest), with the terminal current's charge, square and the eddy
-    energy of the orbit (1e-7); a fraction of 1 (no slow part) too."""
+    energy of the orbit (1e-7); a fraction of 1 (no slow part) too; the period's energy
+    balance (1e-9)."""
     coil = LINEAR if kind == "linear" else SATURATING
     duty, fraction, freq = CASES.get(case, (0.2, 1.0, 20e3))
     ss, period, t_on, t_fast = _orbit(coil, duty, fraction, freq)
@@ -147,6 +148,12 @@ def test_orbit_is_periodic_under_scipy(kind, case):
     assert ref[1] == pytest.approx(float(ss.charge_on + ss.charge_off), rel=1e-7)
     assert ref[2] == pytest.approx(float(ss.square_on + ss.square_off), rel=1e-7)
     assert ref[3] == pytest.approx(float(ss.eddy_energy), rel=1e-7)
+    # the first law over a period (the field ends where it started): the supply's on-time
+    # energy less what the fast part gives back heats the copper, switches, diodes and core
+    q_f, s_f = float(ss.charge_fast), float(ss.square_fast)
+    heat = (R_ON * float(ss.square_on) + R_FAST * s_f + R_SLOW * (float(ss.square_off) - s_f)
+            + 2 * V_D * q_f + float(ss.eddy_energy))
+    assert V_SUP * float(ss.charge_on - ss.charge_fast) == pytest.approx(heat, rel=1e-9)
 
 
 def test_without_the_eddy_term_it_tends_to_the_plain_mixed_orbit():

@@ -201,7 +201,9 @@ def test_late_release_of_a_saturating_branch_matches_scipy(case):
     """A curve as the magnetising branch: scipy's Radau on ``L_d(i_m) di_m/dt = R_e (i -
     i_m)`` with ``i = max(0, (R_e i_m - V_off) / (R + R_e))`` through the slow path for
     the lag, then the fast path: the flux's drop-out, the terminal current's stop, its
-    charge through each path and the eddy energy, 1e-6."""
+    charge through each path and the eddy energy, 1e-6; and the energy balance of the
+    release (the first law: the field at the turn-off, ``int i dpsi``, is what the two
+    paths and ``R_e`` take), 1e-9."""
     from scipy.integrate import solve_ivp
 
     from coildrive.model import flux
@@ -242,6 +244,10 @@ def test_late_release_of_a_saturating_branch_matches_scipy(case):
     assert float(late.slow[0]) == pytest.approx(charges[0], rel=1e-6)
     assert float(late.fast[0]) == pytest.approx(charges[1], rel=1e-6, abs=1e-12)
     assert float(late.eddy_energy) == pytest.approx(y[2], rel=1e-6)
+    # the first law: the field at the turn-off ends in the two paths' elements and R_e
+    (q1, s1), (q2, s2) = late.slow, late.fast
+    spent = slow[1] * q1 + slow[0] * s1 + fast[1] * q2 + fast[0] * s2 + late.eddy_energy
+    assert float(spent) == pytest.approx(float(eddy.stored_energy(e.magnetising, i_off)), rel=1e-9)
 
 
 def test_design_simulate_and_check_a_late_bypass(tmp_path):
