@@ -1223,22 +1223,23 @@ def _read_table(s: _Section, current_key: str, flux_key: str):
 
 
 def _eddy_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel, switch: Switch,
-                 thermal: Thermal, duty: "Duty | None", supply: Supply) -> None:
+                 thermal: Thermal, duty: "Duty | None", supply: Supply,
+                 armature: "Armature | None" = None) -> None:
     """What an eddy-current term does not yet work with: one line naming the key."""
     if not coil.eddy_resistance:
         return
     what = "an eddy-current term (coil.eddy_resistance / eddy_time_constant)"
-    if switch.topology == "full_bridge" and hold.fast_fraction > 0:
-        raise InputError(source, "hold.fast_fraction", f"mixed decay with {what} on a full bridge is "
-                         "not supported yet: leave it out (slow decay in the hold)")
     if freewheel.split_decay and hold.mode == "current":
         raise InputError(source, "freewheel.split_decay", f"split decay with a current-mode hold "
                          f"and {what} is not supported yet: use mode = \"voltage\" or leave "
                          "split_decay out")
-    if freewheel.split_decay and freewheel.bypass_lead < 0:
+    if switch.topology == "full_bridge" and hold.fast_fraction > 0 and armature is not None:
+        raise InputError(source, "hold.fast_fraction", f"mixed decay with {what} and [armature] on a "
+                         "full bridge is not supported yet: leave it out (slow decay in the hold)")
+    if freewheel.split_decay and freewheel.bypass_lead < 0 and armature is not None:
         raise InputError(source, "freewheel.bypass_lead", f"a bypass that opens after the final "
-                         f"turn-off with {what} is not supported yet: open it at or before the "
-                         "turn-off (bypass_lead >= 0)")
+                         f"turn-off with {what} and [armature] is not supported yet: open it at or "
+                         "before the turn-off (bypass_lead >= 0)")
 
 
 def _mechanics_currents(arm: Armature, coil: Coil) -> dict[str, float]:
@@ -1818,7 +1819,7 @@ def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_
     merged, origins = _merged(brd.source, fw_board, source, fw_drive)
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
     _check_bridge(source, origins, switch, freewheel, supply, hold)
-    _eddy_limits(source, coil, hold, freewheel, switch, thermal, duty, supply)
+    _eddy_limits(source, coil, hold, freewheel, switch, thermal, duty, supply, armature)
     _check_droop(source, coil, switch, supply, armature, hold)
     _check_boost(source, origins, coil, switch, freewheel, supply, hold, pull_in, armature, duty)
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:

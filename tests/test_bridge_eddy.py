@@ -266,10 +266,3 @@ def test_design_simulate_and_check_of_the_bridge_with_eddy(tmp_path):
     assert blocked.sum() > 10 and np.all(v[blocked] < 0)
     check_synthetic(tmp_path, path)
 
-
-def test_mixed_decay_with_eddy_on_a_bridge_is_refused_in_one_line(tmp_path):
-    path = _bridge_eddy(tmp_path)
-    path.write_text(path.read_text().replace('frequency = "20 kHz"', 'frequency = "20 kHz"\nfast_fraction = 0.3'))
-    r = run_cli("design", str(path))
-    line = r.stderr.strip()
-    assert r.returncode == 2 and "\n" not in line and "hold.fast_fraction" in line and "eddy" in line, line

@@ -14,7 +14,7 @@ import numpy as np
 
 from ..config import Drive
 from ..model import eddy
-from ..model.circuit import freewheel_element_energy
+from ..model.circuit import freewheel_element_energy, split_decay
 from .corners import CornerGrid
 from .evaluate import PointResults
 from .figures import worst
@@ -33,10 +33,17 @@ def eddy_result(drive: Drive, grid: CornerGrid, res: PointResults) -> EddyResult
     step = np.asarray(lp.v_on / (lp.r_on + r_e), float)
     block = np.asarray(eddy.block_current(rel.v_off, r_e) + 0.0 * step, float)
     i_off = np.asarray(res.hold.i_max, float)
-    t_zero = eddy.conduction_time(i_off, rel.r_off, rel.v_off, e)
-    q, s, w_cond = eddy.decay_integrals(t_zero, i_off, rel.r_off, rel.v_off, e)
-    w_eddy = np.asarray(eddy.release_eddy_energy(i_off, rel.r_off, rel.v_off, e), float) + 0.0 * step
-    w_fw = np.asarray(freewheel_element_energy(drive, rel, q, s), float) + 0.0 * step
+    lag = max(-drive.freewheel.bypass_lead, 0.0) if split_decay(drive) else 0.0
+    if lag > 0:   # a late bypass: the slow path for lag s, then the fast one
+        late = eddy.late_release(i_off, lag, (lp.r_off, lp.v_off), (rel.r_off, rel.v_off), drive.release.current, e)
+        w_eddy = np.asarray(late.eddy_energy, float) + 0.0 * step
+        w_fw = np.asarray(freewheel_element_energy(drive, lp, *late.slow)
+                          + freewheel_element_energy(drive, rel, *late.fast), float) + 0.0 * step
+    else:
+        t_zero = eddy.conduction_time(i_off, rel.r_off, rel.v_off, e)
+        q, s, _ = eddy.decay_integrals(t_zero, i_off, rel.r_off, rel.v_off, e)
+        w_eddy = np.asarray(eddy.release_eddy_energy(i_off, rel.r_off, rel.v_off, e), float) + 0.0 * step
+        w_fw = np.asarray(freewheel_element_energy(drive, rel, q, s), float) + 0.0 * step
     outlasts = np.maximum(np.asarray(res.release_time, float) - np.asarray(res.release_zero_time, float), 0.0)
     power = np.asarray(res.hold.eddy_energy / res.hold.period, float)
     k_s, k_r, k_h = worst(step), worst(w_eddy), worst(power)

@@ -16,6 +16,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..config import Drive
+from ..model import eddy
+from ..model.eddy import EddyCoil
 from ..model.circuit import Loop, freewheel_element_energy, loop, two_paths
 from ..model.pwm import PwmSteadyState, duty_for_mean, coil_heat, pwm_steady_state
 from ..model.rl import decay_current, decay_integrals, decay_time
@@ -279,7 +281,8 @@ def release_figures(drive: Drive, lp: Loop, lp_rel: Loop, i_off):
     a bypass that opens ``lag = -bypass_lead`` s after the final turn-off (a late bypass),
     the current first decays through the hold's slow path ``lp`` for ``lag`` s, then
     through the fast path; with ``bypass_lead >= 0`` the bypass is already open and the
-    whole release is fast.
+    whole release is fast. With an eddy term the times and the takeover current are the
+    flux's (:func:`coildrive.model.eddy.late_release`).
     """
     drop = drive.release.current
     ind = lp.inductance
@@ -289,6 +292,11 @@ def release_figures(drive: Drive, lp: Loop, lp_rel: Loop, i_off):
         t_zero = decay_time(0.0, i_off, lp_rel.r_off, lp_rel.v_off, ind)
         q, s = decay_integrals(t_zero, i_off, lp_rel.r_off, lp_rel.v_off, ind)
         return t_drop, t_zero, freewheel_element_energy(drive, lp_rel, q, s), np.asarray(i_off, float)
+    if isinstance(ind, EddyCoil):   # the flux decays on through R_e where a path blocks
+        late = eddy.late_release(i_off, lag, (lp.r_off, lp.v_off), (lp_rel.r_off, lp_rel.v_off), drop, ind)
+        energy = (freewheel_element_energy(drive, lp, *late.slow)
+                  + freewheel_element_energy(drive, lp_rel, *late.fast))
+        return late.drop_time, late.zero_time, energy, late.open_current
     slow_zero = decay_time(0.0, i_off, lp.r_off, lp.v_off, ind)
     t_slow = np.minimum(lag, slow_zero)
     i_lag = decay_current(t_slow, i_off, lp.r_off, lp.v_off, ind)

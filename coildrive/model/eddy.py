@@ -246,6 +246,43 @@ def release_eddy_energy(i0, r, v_off, e: EddyCoil):
     return decay_integrals(np.inf, i0, r, v_off, e)[2]
 
 
+
+@dataclass(frozen=True)
+class LateRelease:
+    """A split decay's release whose bypass opens ``lag`` s after the final turn-off, per
+    point: the flux's time to the drop-out current and the time the terminal current
+    stops (s), the magnetising current when the bypass opens (A), the terminal current's
+    ``(int i dt, int i^2 dt)`` through the slow path and then the fast one (A*s, A^2*s),
+    and the eddy resistance's energy to the end of the flux (J)."""
+
+    drop_time: np.ndarray
+    zero_time: np.ndarray
+    open_current: np.ndarray
+    slow: tuple
+    fast: tuple
+    eddy_energy: np.ndarray
+
+
+def late_release(i_off, lag: float, slow, fast, drop, e: EddyCoil) -> LateRelease:
+    """The release from a magnetising current ``i_off`` A through the hold's slow path
+    (``slow = (r ohm, v_off V)``, the diode and the closed bypass) for ``lag`` s, then
+    through the fast one (``fast``, the diode and the fast element). Each path blocks
+    where its terminal current reaches zero (``i_m = V_off / R_e``) and the flux then
+    decays through ``R_e``: the slow path may block inside the lag (the fast one then
+    finds ``i_m`` below its own, higher, block current and conducts nothing); a flux
+    still above the fast path's block current drives the terminal current on through the
+    fast path, stepping down at the bypass's opening. ``drop``: the drop-out current
+    (A, of the flux)."""
+    (r1, v1), (r2, v2) = slow, fast
+    i_off = np.asarray(i_off, float)
+    i_lag = decay_current(lag, i_off, r1, v1, e)
+    q1, s1, w1 = decay_integrals(lag, i_off, r1, v1, e)
+    q2, s2, w2 = decay_integrals(np.inf, i_lag, r2, v2, e)
+    t2 = conduction_time(i_lag, r2, v2, e)
+    t_zero = np.where(t2 > 0, lag + t2, np.minimum(lag, conduction_time(i_off, r1, v1, e)))
+    t_drop = np.where(i_lag <= drop, decay_time(drop, i_off, r1, v1, e), lag + decay_time(drop, i_lag, r2, v2, e))
+    return LateRelease(t_drop, t_zero, i_lag, (q1, s1), (q2, s2), w1 + w2)
+
 @dataclass(frozen=True)
 class EddyOrbit:
     """The PWM hold's periodic orbit with an eddy resistance, per point: the lowest and

@@ -17,6 +17,8 @@ bus (``supply.source_resistance``) the peak is :mod:`coildrive.model.supply`'s c
 
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 
 from ..config import Drive
@@ -106,6 +108,61 @@ class _Point:
         return tb + float(self.tail.time_at(i1) - self.tail.time_at(min(i0, self.ib)))
 
 
+class _Mixed:
+    """A full bridge's mixed-decay off-times at one operating point (``lp.mixed``): the
+    fast part (all four switches open: against ``V_bus + 2 V_d`` through ``R_f``, the
+    body diodes blocking at ``i_m = V_f / R_e``, then the flux through ``R_e``) tabulated
+    as a freewheel of its own (:class:`_Point`), then the slow part (Q2 + Q4, nothing
+    opposing: ``dpsi/dt = -R_s R_e / (R_s + R_e) i_m``, never blocking). The terminal
+    current steps up where the slow part starts (the fast part's end, at the same
+    instant)."""
+
+    def __init__(self, lp: Loop, pt: _Point, top: float, t_off: float):
+        m = lp.mixed
+        self.t_fast = float(m.fraction) * t_off
+        self.t_slow = t_off - self.t_fast
+        self.fast = _Point(dataclasses.replace(lp, r_off=np.ravel(m.r_fast)[:1], v_off=np.ravel(m.v_fast)[:1]),
+                           top)
+        self.re, self.r_s = pt.re, pt.r_off
+        rs_t = float(eddy.thevenin(0.0, self.r_s, self.re)[1])
+        hi = max(top, pt.v / pt.r_on)   # the on-loop's asymptote of the magnetising current
+        self.slow = _Table(pt.mag, 0.0, rs_t, hi * 1.001 * np.logspace(0, -12, GRID + 1))
+
+    def period_end(self, top, _t_off=None):
+        """Magnetising current A at the end of the off-time from ``top`` A."""
+        return self.slow.current(self.fast.decay(top, self.t_fast), self.t_slow)
+
+    def off_samples(self, tops, frac):
+        """The off-times' samples from the tops ``tops`` (A, one per period): ``(time from
+        the off-time's start s, magnetising A, terminal A, 1 in the fast part)``, rows per
+        period."""
+        n, k = tops.size, frac.size - 1
+        tb = self.fast.conduction(tops)
+        extra = np.where(tb < self.t_fast, tb, self.t_fast * (k - 0.5) / k)
+        fast_t = np.sort(np.concatenate([np.broadcast_to(frac[None, :] * self.t_fast, (n, k + 1)),
+                                         extra[:, None]], axis=1), axis=1)
+        fast_m = self.fast.decay(tops[:, None], fast_t)
+        slow_t = np.broadcast_to(frac[None, :] * self.t_slow, (n, k + 1))
+        slow_m = self.slow.current(fast_m[:, -1:], slow_t)
+        slow_c = eddy.terminal(slow_m, 0.0, self.r_s, self.re)
+        flag = np.concatenate([np.ones_like(fast_t), np.zeros_like(slow_t)], axis=1)
+        return (np.concatenate([fast_t, self.t_fast + slow_t], axis=1), np.concatenate([fast_m, slow_m], axis=1),
+                np.concatenate([self.fast.off_terminal(fast_m), slow_c], axis=1), flag)
+
+
+def _freewheel_samples(pt: _Point, t0: float, i0: float, t_knee: float, t_end: float, big: int,
+                       pieces) -> tuple[float, float]:
+    """Append a freewheel through ``pt``'s off path from ``i0`` A at ``t0`` s to the sample
+    pieces ``(time, magnetising, terminal, switch_on, fast)``: ``big`` + 1 samples up to
+    ``t_knee`` s (where the path stops conducting) and as many after it, to ``t_end`` s;
+    returns the end ``(time s, magnetising current A)``."""
+    td = np.unique(np.concatenate([np.linspace(0.0, t_knee, big + 1), np.linspace(t_knee, t_end, big + 1)]))
+    md = pt.decay(i0, td)
+    for piece, x in zip(pieces, (t0 + td, md, pt.off_terminal(md), np.zeros_like(td), np.zeros_like(td))):
+        piece.append(x)
+    return t0 + float(td[-1]), float(md[-1])
+
+
 def _peak(drive: Drive, lp: Loop, peak_time: float, big: int):
     """The operating point's tables and the peak's ``big`` + 1 samples from zero flux:
     ``(point, magnetising current at the peak's end A, [time], [terminal], [magnetising],
@@ -131,34 +188,47 @@ def _peak(drive: Drive, lp: Loop, peak_time: float, big: int):
 def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: float,
               hold_time: float, points: int, release: Loop | None = None, lead: float = 0.0):
     """The sample pieces of one actuation: ``(time, terminal current, magnetising
-    current, switch_on, t_off, t_zero)`` (s, A, A, 0/1 arrays; the final turn-off and
-    the time the terminal current reaches zero, s) through the loop ``lp`` of one
+    current, switch_on, fast, t_off, t_zero)`` (s, A, A, 0/1 arrays, 1 in a mixed-decay
+    hold's fast parts; the final turn-off and the time the terminal current reaches
+    zero, s) through the loop ``lp`` of one
     operating point whose inductance is an :class:`~coildrive.model.eddy.EddyCoil`.
     ``release``: the loop of the release (split decay's fast path; ``None``: ``lp``'s),
     its bypass opening ``lead`` s before the final turn-off (a sample there when that is
-    inside the last on-time; the pieces are then not in time order)."""
-    pt, peak_end, ts, cs, ms, ons = _peak(drive, lp, peak_time, 40 * points)
+    inside the last on-time; the pieces are then not in time order), or ``-lead`` s after
+    it (the flux decaying through the slow path until then, and through ``R_e`` once
+    that blocks)."""
     big = 40 * points
+    pt, peak_end, ts, cs, ms, ons = _peak(drive, lp, peak_time, big)
+    fasts = [np.zeros_like(ts[0])]
     period = 1.0 / frequency
     n = max(1, int(round(hold_time * frequency)))
     t_on, t_off = duty * period, (1.0 - duty) * period
-    starts = period_starts(pt.on.current, pt.decay, peak_end, n, t_on, t_off)
     frac = np.linspace(0.0, 1.0, points + 1)
     t0 = peak_time + np.arange(n)[:, None] * period
     on_t = np.broadcast_to(frac[None, :] * t_on, (n, points + 1))
-    on_m = pt.on.current(starts[:, None], on_t)
+    if lp.mixed is not None:   # a full bridge's mixed decay: each off-time fast, then slow
+        mixed = _Mixed(lp, pt, peak_end, t_off)
+        starts = period_starts(pt.on.current, mixed.period_end, peak_end, n, t_on, t_off)
+        on_m = pt.on.current(starts[:, None], on_t)
+        off_t, off_m, off_c, fast_off = mixed.off_samples(on_m[:, -1], frac)
+    else:
+        starts = period_starts(pt.on.current, pt.decay, peak_end, n, t_on, t_off)
+        on_m = pt.on.current(starts[:, None], on_t)
+        tb = pt.conduction(on_m[:, -1])
+        extra = np.where(tb < t_off, tb, t_off * (points - 0.5) / points)
+        off_t = np.sort(np.concatenate([np.broadcast_to(frac[None, :] * t_off, (n, points + 1)),
+                                        extra[:, None]], axis=1), axis=1)
+        off_m = pt.decay(on_m[:, -1][:, None], off_t)
+        off_c = pt.off_terminal(off_m)
+        fast_off = np.zeros(off_t.shape)
     tops = on_m[:, -1]
-    tb = pt.conduction(tops)
-    extra = np.where(tb < t_off, tb, t_off * (points - 0.5) / points)
-    off_t = np.sort(np.concatenate([np.broadcast_to(frac[None, :] * t_off, (n, points + 1)),
-                                    extra[:, None]], axis=1), axis=1)
-    off_m = pt.decay(tops[:, None], off_t)
-    t_flat, on_flat, m_flat, c_flat = stitch_periods(
-        t0, t_on, on_t, off_t, (on_m, off_m), (pt.on_terminal(on_m), pt.off_terminal(off_m)))
+    t_flat, on_flat, m_flat, c_flat, fast_flat = stitch_periods(
+        t0, t_on, on_t, off_t, (on_m, off_m), (pt.on_terminal(on_m), off_c), (np.zeros_like(on_m), fast_off))
     ts.append(t_flat)
     ms.append(m_flat)
     cs.append(c_flat)
     ons.append(on_flat)
+    fasts.append(fast_flat)
     t_cut = peak_time + (n - 1) * period + t_on
     i_cut = float(tops[-1])
     if release is not None and 0.0 < lead < t_on:   # the bypass opens in the last on-time
@@ -167,38 +237,35 @@ def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: 
         ms.append(np.array([m_open]))
         cs.append(np.atleast_1d(pt.on_terminal(m_open)))
         ons.append(np.ones(1))
-    pt = pt if release is None else _Point(release, i_cut)
-    return ts, cs, ms, ons, t_cut, _release(pt, t_cut, i_cut, big, ts, cs, ms, ons)
-
-
-def _release(pt: _Point, t_cut: float, i_cut: float, big: int, ts, cs, ms, ons) -> float:
-    """Append the release from a magnetising current ``i_cut`` A at ``t_cut`` s to the
-    sample pieces (until the flux's current is :data:`TAIL_FRACTION` of ``i_cut``);
-    returns the time (s) the terminal current reaches zero."""
-    tz = float(pt.conduction(i_cut))
-    t_end = max(pt.time_to(i_cut, TAIL_FRACTION * i_cut), tz)
-    td = np.unique(np.concatenate([np.linspace(0.0, tz, big + 1), np.linspace(tz, t_end, big + 1)]))
-    md = pt.decay(i_cut, td)
-    ts.append(t_cut + td)
-    ms.append(md)
-    cs.append(pt.off_terminal(md))
-    ons.append(np.zeros_like(td))
-    return t_cut + tz
+        fasts.append(np.zeros(1))
+    t_rel, i_rel, t_stop = t_cut, i_cut, None
+    if release is not None and lead < 0:   # a late bypass: the slow path for -lead s first
+        t_stop = min(-lead, float(pt.conduction(i_cut)))   # the slow path may block in the lag
+        t_rel, i_rel = _freewheel_samples(pt, t_cut, i_cut, t_stop, -lead, big, (ts, ms, cs, ons, fasts))
+    pt = pt if release is None else _Point(release, i_rel)
+    tz = float(pt.conduction(i_rel))
+    _freewheel_samples(pt, t_rel, i_rel, tz, max(pt.time_to(i_rel, TAIL_FRACTION * i_cut), tz, 0.0), big,
+                       (ts, ms, cs, ons, fasts))
+    # the terminal current stops where the fast path stops conducting, or (a late bypass
+    # opening on a flux below the fast path's block current) where the slow path did
+    t_zero = t_rel + tz if tz > 0 or t_stop is None else t_cut + t_stop
+    return ts, cs, ms, ons, fasts, t_cut, t_zero
 
 
 def threshold_actuation(drive: Drive, lp: Loop, peak_time: float, hold_time: float,
                         points: int, control: str, lower: float, upper: float,
                         off_time: float, delay: float):
     """The sample pieces of one actuation with a current-mode hold (the pieces and
-    returns of :func:`actuation`): the controller compares the SENSED (terminal) current
+    returns of :func:`actuation`, no fast parts): the controller compares the SENSED (terminal) current
     with its thresholds -- hysteretic: off when it reaches ``upper`` A, on again when it
     falls to ``lower`` A; ``"off_time"``: off at ``upper`` A for ``off_time`` s -- each
     edge ``delay`` s late. A threshold is a magnetising current that depends on the
     loop that conducts (:func:`coildrive.model.current_mode.sensed_threshold`); the hold
     ends at the top of its last on-time after ``hold_time`` s. The terminal current
     steps at every edge (two samples at the edge's instant)."""
-    pt, peak_end, ts, cs, ms, ons = _peak(drive, lp, peak_time, 40 * points)
     big = 40 * points
+    pt, peak_end, ts, cs, ms, ons = _peak(drive, lp, peak_time, big)
+    fasts = [np.zeros_like(ts[0])]
     v, r_on = pt.v, pt.r_on
     m_hi = (r_on + pt.re) * upper / pt.re - v / pt.re
     m_lo = ((pt.r_off + pt.re) * lower + pt.v_off) / pt.re
@@ -214,6 +281,7 @@ def threshold_actuation(drive: Drive, lp: Loop, peak_time: float, hold_time: flo
         ms.append(mu)
         cs.append(pt.on_terminal(mu))
         ons.append(np.ones_like(tu))
+        fasts.append(np.zeros_like(tu))
         return t + dur, float(mu[-1])
 
     while regulated and t < end:
@@ -227,10 +295,14 @@ def threshold_actuation(drive: Drive, lp: Loop, peak_time: float, hold_time: flo
         ms.append(md)
         cs.append(pt.off_terminal(md))
         ons.append(np.zeros_like(td))
+        fasts.append(np.zeros_like(td))
         t, m = t + dur, float(md[-1])
         dur = (float(pt.on.time_at(min(m_hi, top)) - pt.on.time_at(m)) if m < m_hi else 0.0) + delay
         if dur > 0:
             t, m = on_for(t, m, dur)
     if not regulated:   # the threshold is out of reach (or chatters): the switch stays on
         t, m = on_for(t, m, hold_time)
-    return ts, cs, ms, ons, t, _release(pt, t, m, big, ts, cs, ms, ons)
+    pieces = (ts, ms, cs, ons, fasts)
+    tz = float(pt.conduction(m))
+    _freewheel_samples(pt, t, m, tz, max(pt.time_to(m, TAIL_FRACTION * m), tz, 0.0), big, pieces)
+    return ts, cs, ms, ons, fasts, t, t + tz

@@ -59,7 +59,7 @@ class MixedOrbit:
     square_slow: np.ndarray
 
 
-def _linear_start(t_on, t_fast, t_slow, v_on, r_on, r_slow, v_fast, r_fast, ind):
+def linear_start(t_on, t_fast, t_slow, v_on, r_on, r_slow, v_fast, r_fast, ind):
     """The linear coil's mixed orbit ``(a, b, c)`` at inductance ``ind`` H (closed form,
     :mod:`coildrive.model.pwm`)."""
     big_a, big_f = v_on / r_on, v_fast / r_fast
@@ -118,7 +118,7 @@ def _newton(k: FluxCoil, t_on, t_fast, t_slow, v_on, r_on, r_s, v_f, r_f, top, i
     n = t_on.size
     ld = k.incremental(0.0)
     for _ in range(2):   # the linear orbit at the incremental inductance of its mean
-        a, b, c = _linear_start(t_on, t_fast, t_slow, v_on, r_on, r_s, v_f, r_f, ld)
+        a, b, c = linear_start(t_on, t_fast, t_slow, v_on, r_on, r_s, v_f, r_f, ld)
         ld = k.incremental(np.clip(0.5 * (a + b), 0.0, None))
     cap = top * (1 - 1e-15)
     b = np.clip(b, 1e-9 * cap, cap)

@@ -157,6 +157,8 @@ def pwm_steady_state(duty, frequency, v_on, r_on, r_off, v_off, inductance,
         unused, the slow path has none), or ``None``
     """
     if isinstance(inductance, EddyCoil):
+        if mixed is not None and mixed.fraction > 0:
+            return _eddy_mixed_steady_state(duty, frequency, v_on, r_on, r_off, inductance, mixed)
         return _eddy_steady_state(duty, frequency, v_on, r_on, r_off, v_off, inductance)
     if mixed is not None and mixed.fraction > 0:
         if isinstance(inductance, FluxCoil):
@@ -273,6 +275,45 @@ def _eddy_steady_state(duty, frequency, v_on, r_on, r_off, v_off, coil: EddyCoil
                           terminal_min=o.terminal_min, terminal_max=o.terminal_max,
                           eddy_energy=o.eddy_energy,
                           magnetising_rms=np.sqrt(np.maximum(o.square_magnetising / period, 0.0)))
+
+
+def _eddy_mixed_steady_state(duty, frequency, v_on, r_on, r_off, coil: EddyCoil,
+                             mixed: MixedDecay) -> PwmSteadyState:
+    """:func:`mixed_steady_state` with an eddy resistance, from its exact three-segment
+    orbit (:func:`coildrive.model.eddy_mixed.mixed_orbit`); full duty is the on-segment
+    alone (:func:`coildrive.model.eddy.orbit`)."""
+    from .eddy_mixed import mixed_orbit
+
+    duty, frequency, v_on, r_on, r_off, r_f, v_f, r_e = np.broadcast_arrays(
+        *(np.asarray(x, float) for x in (duty, frequency, v_on, r_on, r_off, mixed.r_fast,
+                                         mixed.v_fast, coil.resistance)))
+    period = 1.0 / frequency
+    t_on = duty * period
+    t_fast = mixed.fraction * (period - t_on)
+    t_slow = np.maximum(period - t_on - t_fast, 0.0)
+    full = t_fast <= 0
+    if np.all(full):
+        return _eddy_steady_state(duty, frequency, v_on, r_on, r_off, 0.0, coil)
+    o = mixed_orbit(coil, t_on, np.where(full, period, t_fast), np.where(full, 0.0, t_slow), v_on, r_on,
+                    r_off, v_f, r_f)
+    if np.any(full):   # always on: the terminal current sits at v_on / r_on
+        top = v_on / r_on
+        o = SimpleNamespace(**{**vars(o), **{k: np.where(full, x, getattr(o, k)) for k, x in dict(
+            i_min=top, i_max=top, dcm=False, conduction_off=0.0, charge_on=top * t_on,
+            square_on=top * top * t_on, charge_fast=0.0, square_fast=0.0, charge_slow=0.0,
+            square_slow=0.0, terminal_min=top, terminal_max=top, eddy_energy=0.0,
+            square_magnetising=top * top * t_on).items()}})
+    q_off, s_off = o.charge_fast + o.charge_slow, o.square_fast + o.square_slow
+    mean = (o.charge_on + q_off) / period
+    rms = np.sqrt(np.maximum((o.square_on + s_off) / period, 0.0))
+    return PwmSteadyState(i_min=o.i_min, i_max=o.i_max, mean=mean, rms=rms,
+                          ripple=o.terminal_max - o.terminal_min, dcm=o.dcm,
+                          conduction_off=o.conduction_off, period=period, charge_on=o.charge_on,
+                          square_on=o.square_on, charge_off=q_off, square_off=s_off,
+                          terminal_min=o.terminal_min, terminal_max=o.terminal_max,
+                          eddy_energy=o.eddy_energy,
+                          magnetising_rms=np.sqrt(np.maximum(o.square_magnetising / period, 0.0)),
+                          charge_fast=o.charge_fast, square_fast=o.square_fast)
 
 
 def _points(inductance):

@@ -280,7 +280,7 @@ def _eddy_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: flo
     last on-time's start); or a full bridge's fast decay from the final turn-off (the
     per-switch columns and the coil voltage of :func:`_bridge_columns`; once the body
     diodes block, the coil's terminals show the flux's decay through ``R_e``, ``-R_e
-    i_m``)."""
+    i_m``), with a mixed-decay hold's fast parts all four open too."""
     from .eddy_waveform import actuation as eddy_samples
 
     bridged = full_bridge(drive)
@@ -293,14 +293,14 @@ def _eddy_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: flo
 def eddy_waveform(drive: Drive, lp, supply: float, pieces, peak_time: float, label: str,
                   fast=None, lead: float = 0.0, last_on: float = 0.0) -> Waveform:
     """The :class:`Waveform` of an actuation with an eddy term from its sample pieces
-    ``(time, terminal current, magnetising current, switch_on, t_off, t_zero)`` (of
+    ``(time, terminal current, magnetising current, switch_on, fast, t_off, t_zero)`` (of
     :mod:`coildrive.model.eddy_waveform`); ``fast``/``lead``/``last_on`` (s): split
     decay's release loop (a full bridge's fast decay), its bypass lead and the last
     on-time."""
     bridged = full_bridge(drive)
-    ts, cs, ms, ons, t_cut, t_zero = pieces
+    ts, cs, ms, ons, fasts, t_cut, t_zero = pieces
     order = np.argsort(np.concatenate(ts), kind="stable")   # the bypass's sample, in place
-    ts, cs, ms, ons = ([np.concatenate(x)[order]] for x in (ts, cs, ms, ons))
+    ts, cs, ms, ons, fasts = ([np.concatenate(x)[order]] for x in (ts, cs, ms, ons, fasts))
     time = np.concatenate(ts)
     # each switch edge has a row before and after the step: the one after sits EDGE s
     # later (a switch edge's own scale), so that time rises strictly
@@ -316,11 +316,13 @@ def eddy_waveform(drive: Drive, lp, supply: float, pieces, peak_time: float, lab
     v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
     events = {"on": 0.0, "hold": peak_time, "off": t_cut, "zero": t_zero}
     magnetising = np.concatenate(ms)
-    if bridged:
-        v_sw = np.where(time > t_cut, _switch_and_sense(drive, fast, supply, current, on)[0], v_sw)
-        v_sw, sense, extra = _bridge_columns(drive, supply, time, current, on, v_sw, t_cut)
+    if bridged:   # (and a mixed-decay hold's fast parts: all four open, as in the release)
+        all_open = np.concatenate(fasts) > 0
+        v_sw = np.where((time > t_cut) | all_open, _switch_and_sense(drive, fast, supply, current, on)[0], v_sw)
+        v_sw, sense, extra = _bridge_columns(drive, supply, time, current, on, v_sw, t_cut,
+                                             all_open=all_open if lp.mixed is not None else None)
         r_e = float(np.ravel(lp.inductance.resistance)[0])
-        blocked = (time > t_cut) & (current <= 0.0)
+        blocked = ((time > t_cut) | all_open) & (current <= 0.0)
         extra["coil_voltage"] = np.where(blocked, -r_e * magnetising, extra["coil_voltage"])
         return Waveform(time, current, on, v_sw, sense, events, label,
                         magnetising_current=magnetising, **extra)
