@@ -420,8 +420,12 @@ class FirmwareDevice(LineOutput):
                 return i_m
             lp = self._loops["hold" if bypass else "release"]
             on = self._loops["hold"]
-            return np.where(np.asarray(x) <= on_end, eddy.terminal(i_m, on.v_on, on.r_on, e.resistance),
-                            np.maximum(eddy.terminal(i_m, -lp.v_off, lp.r_off, e.resistance), 0.0))
+            off = np.maximum(eddy.terminal(i_m, -lp.v_off, lp.r_off, e.resistance), 0.0)
+            if fast_t is not None:   # a mixed-decay hold's fast part: through the body diodes
+                fast = self._loops["release"]
+                off = np.where(np.asarray(x) <= fast_t,
+                               np.maximum(eddy.terminal(i_m, -fast.v_off, fast.r_off, e.resistance), 0.0), off)
+            return np.where(np.asarray(x) <= on_end, eddy.terminal(i_m, on.v_on, on.r_on, e.resistance), off)
 
         #: a full bridge's slow decay that the driver ends at the conversion (all four open):
         #: the time it does, s, from which the current decays fast
