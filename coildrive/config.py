@@ -1498,7 +1498,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                  supply: Supply, hold: Hold, pull_in: PullIn, armature: Armature | None,
                  duty) -> None:
     """What the boosted peak (``supply.boost``) is modelled with: a linear coil, a low-side
-    or a high-side switch, a diode/zener/resistor freewheel (split decay too) or a clamp on
+    or a high-side switch or a full bridge (the boost switch feeding leg A's high side, the
+    release into the main bus: :func:`_check_bridge` says what a bridge takes), a
+    diode/zener/resistor freewheel (split decay too) or a clamp on
     a low-side switch, a stiff main supply, a PWM
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
     mode), a peak that ends at its threshold, no moving armature.
@@ -1514,9 +1516,6 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     elif coil.eddy_resistance:
         key = "coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance"
         why = "an eddy-current term"
-    elif switch.topology == "full_bridge":
-        key, why = "switch.topology", ("a full bridge (only a low-side or a high-side switch: a bridge's "
-                                       "fast decay would return the coil's energy into the boost rail)")
     elif freewheel.type == "clamp" and switch.topology != "low_side":
         key, why = "freewheel.type", "a clamp across a high-side switch (a clamp on a low-side switch only)"
         source = fw_origins.get("type", source)
@@ -1534,7 +1533,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                                            "not at a time after the pull-in)")
     if why is not None:
         raise InputError(source, key, f"the boosted peak (supply.boost) is not modelled with {why}: "
-                         "expected boost left out, or a linear coil, a low-side or high-side switch, a "
+                         "expected boost left out, or a linear coil, a low-side or high-side switch or a "
+                         "full bridge, a "
                          "diode/zener/resistor freewheel (split decay too; a clamp on a low-side "
                          "switch), a stiff main supply, a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time, no "

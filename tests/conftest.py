@@ -73,9 +73,9 @@ def drive_path(name: str):
 #: bridge takes no split decay, no moving armature and no current-mode hold.
 REFUSING_BOARDS = ("bridge-m32-fast",)
 #: Bundled examples made for one board only, by name: the boosted fuel valve's peak is
-#: sized for its board's ADC and tick (its 1.1 A threshold reads 2731 codes there); the
-#: clamp, high-side and bridge boards refuse a boosted peak in one line
-#: (tests/test_boost.py checks those refusals).
+#: sized for its board's ADC and tick (its 1.1 A threshold reads 2731 codes there); on
+#: the high-side and bridge boards it designs with a higher-rated switch
+#: (tests/test_boost_high_side.py, tests/test_boost_bridge.py).
 BOARD_ONLY_EXAMPLES = {"fuel-valve-boost-12v": "lab-m32-zener"}
 
 

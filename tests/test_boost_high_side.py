@@ -138,9 +138,9 @@ def test_design_header_and_simulate(tmp_path):
     assert rows["node_voltage_v"].min() == pytest.approx(-V_FW, abs=1e-4)
 
 
-def test_emulated_drive_passes_check(tmp_path):
-    # plumbing (the emulator shares the design's physics): the virtual device's capture of
-    # the high-side boost passes check, a coil 40 % over its resistance fails it
+def emulated_check_passes(tmp_path, path):
+    """Plumbing (the emulator shares the design's physics): the virtual device's capture of
+    the boosted drive at ``path`` passes check, a coil 40 % over its resistance fails it."""
     from test_emulator_device import capture_of, run as run_device
 
     from coildrive.bench.check import check_capture
@@ -148,18 +148,17 @@ def test_emulated_drive_passes_check(tmp_path):
     from coildrive.config import load_drive
     from coildrive.design import design
 
-    d = design(load_drive(_variant(tmp_path)))
+    d = design(load_drive(path))
     for scale, ok in ((1.0, True), (1.4, False)):
         dev = VirtualDevice(d.drive, DeviceOptions(noise_codes=1.0, seed=3, resistance_scale=scale), design=d)
         msgs, _ = run_device(dev, 0.05 + dev.period, step=0.05)
         assert check_capture(capture_of(msgs, tmp_path / f"{scale}.cdcap"), d).ok is ok, scale
 
 
-@pytest.mark.compiler
-def test_firmware_driver_builds_and_runs(tmp_path):
-    # gcc, strict: the reference driver firmware-driver writes for the high-side boost (the
-    # driver switches the boost and Q1 whatever side Q1 is on); then in the loop, in
-    # process, one actuation at the nominal point ends the peak at the threshold, no fault
+def driver_runs_to_threshold(tmp_path, path) -> str:
+    """gcc, strict: the reference driver firmware-driver writes for the boosted drive at
+    ``path``; then in the loop, in process, one actuation at the nominal point ends the
+    peak at the threshold, no fault. Returns the driver's header text."""
     from driver_harness import STRICT
 
     from coildrive.bench import FrameDecoder
@@ -171,10 +170,9 @@ def test_firmware_driver_builds_and_runs(tmp_path):
     from coildrive.design import design
 
     gcc = require_tool("gcc")
-    fw, path = tmp_path / "fw", _variant(tmp_path)
+    fw = tmp_path / "fw"
     r = run_cli("firmware-driver", str(path), "--out", str(fw))
     assert r.returncode == 0, r.stderr
-    assert "coil_port_boost" in (fw / "coil_driver.h").read_text()
     c = subprocess.run([gcc, *STRICT, "-c", str(fw / "coil_driver.c"), "-o", str(tmp_path / "d.o")],
                        capture_output=True, text=True)
     assert c.returncode == 0, c.stderr
@@ -189,3 +187,14 @@ def test_firmware_driver_builds_and_runs(tmp_path):
     assert EventKind.PEAK_END in kinds and EventKind.OFF in kinds and EventKind.FAULT not in kinds, kinds
     on, end = (next(e.index for e in events if e.kind == k) for k in (EventKind.ON, EventKind.PEAK_END))
     assert (end - on) / d.drive.board.adc.sample_rate < d.boost.timeout_s
+    return (fw / "coil_driver.h").read_text()
+
+
+def test_emulated_drive_passes_check(tmp_path):
+    emulated_check_passes(tmp_path, _variant(tmp_path))
+
+
+@pytest.mark.compiler
+def test_firmware_driver_builds_and_runs(tmp_path):
+    # the driver switches the boost and Q1 whatever side Q1 is on
+    assert "coil_port_boost" in driver_runs_to_threshold(tmp_path, _variant(tmp_path))

@@ -59,7 +59,7 @@ def test_what_a_full_bridge_refuses_is_one_line(tmp_path, old, new, key):
 def test_bundled_examples_a_bridge_refuses():
     refused = {(e.stem, b) for e in EXAMPLES.glob("*.toml") for b in REFUSING_BOARDS if not loads(e, b)}
     assert refused == {("demo-valve", "bridge-m32-fast"), ("wash-valve-split-24v", "bridge-m32-fast"),
-                       ("fuel-valve-boost-12v", "bridge-m32-fast"),   # a boosted peak: low side only
+                       ("fuel-valve-boost-12v", "bridge-m32-fast"),   # made for its own board
                        ("dosing-valve-closed-loop", "bridge-m32-fast")}   # its Zener
 
 

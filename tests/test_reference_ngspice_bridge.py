@@ -221,6 +221,21 @@ def test_pump_up_into_the_bulk_capacitance_matches_ngspice(tmp_path, capacitance
     assert float(pu.zero_time) < t_fixed
 
 
+def column_gate(col, change, edges, late: bool) -> str:
+    """A switch's gate as a ``PWL`` source from its ``simulate`` column ``col`` (0/1 per
+    sample): at each edge (sample index ``change``, time ``edges``) off at once (one
+    STAGGER later if ``late``: Q4 at the release), on one STAGGER later."""
+    level = int(col[0])
+    points = [(0.0, level)]
+    for k, edge in zip(change, edges):
+        new = int(col[k + 1])
+        if new != level:
+            at = edge + (STAGGER if new == 1 or late else 0.0)
+            points += [(at, level), (at + EDGE, new)]
+            level = new
+    return "PWL(" + " ".join(f"{a!r} {b}" for a, b in points) + ")"
+
+
 @pytest.mark.parametrize("kind, fraction", [("linear", 0.0), ("linear", 0.3), ("curve", 0.0)],
                          ids=["slow-hold", "mixed-hold", "curve-slow-hold"])
 def test_simulated_switch_columns_drive_the_element_level_bridge(tmp_path, kind, fraction):
@@ -257,19 +272,8 @@ def test_simulated_switch_columns_drive_the_element_level_bridge(tmp_path, kind,
     change = np.nonzero(np.any([np.diff(w[f"{n}_on"]) for n in names], axis=0))[0]
     # an edge sits on the last sample of the part it ends, but on the first of an on-time
     edges = [float(t[k + 1] if on[k + 1] == 1 else t[k]) for k in change]
-    gates = {}
-    for q, name in enumerate(names, start=1):
-        col = w[f"{name}_on"]
-        level = int(col[0])
-        points = [(0.0, level)]
-        for k, edge in zip(change, edges):
-            new = int(col[k + 1])
-            if new != level:
-                # off at the edge (Q4 one STAGGER later at the release), on one STAGGER later
-                at = edge + (STAGGER if new == 1 or name == "low_b" else 0.0)
-                points += [(at, level), (at + EDGE, new)]
-                level = new
-        gates[q] = "PWL(" + " ".join(f"{a!r} {b}" for a, b in points) + ")"
+    gates = {q: column_gate(w[f"{name}_on"], change, edges, name == "low_b")
+             for q, name in enumerate(names, start=1)}
     t_peak, t_off = edges[0], edges[-1]
     t_zero = float(t[-1]) - t_off
     k_slow = change[-3]          # the middle of the last off-time of the hold

@@ -78,6 +78,11 @@ def _topology_rows(d: Design) -> list:
                 ("energy back to the supply", f"{b.returned_per_release_j * 1e3:.4g} mJ",
                  f"per release ({b.release_corner}); up to {b.returned_worst_j * 1e3:.4g} mJ at the "
                  f"{b.worst_event}; {period}")]
+        if b.boost_return_bound_v is not None:
+            rows.append(("return into the boost", "none",
+                         "Q3 returns into the main bus; were both legs on the boosted rail, the "
+                         f"boost capacitor would rise to at most {b.boost_return_bound_v:.4g} V "
+                         f"({b.boost_return_event}, {b.boost_return_corner})"))
         if not b.sink:
             rows.append(("bus pump-up", f"+{b.pump_up_v:.4g} V",
                          f"to {b.pumped_bus_v:.4g} V on {b.capacitance_f * 1e6:.4g} uF ({b.pump_event}, "

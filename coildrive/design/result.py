@@ -413,7 +413,13 @@ class BridgeResult:
     its rise there), and the switches see up to ``pumped_switch_voltage_v``.
     ``switches_on`` names the switches on in each phase (``peak``, ``hold_on``,
     ``hold_decay``, ``release``; :data:`coildrive.model.bridge.PHASES`): what the header
-    and the reference driver switch.
+    and the reference driver switch. With a boosted peak (``[supply] boost``) the boost
+    switch has its own pin beside these four (the header's boost constants), and
+    ``boost_return_bound_v`` bounds the boost capacitor's voltage had the fast decay's
+    return reached it through the boost switch's body diode (a bridge wired with both legs
+    on the boosted rail): every turn-off's energy onto the capacitor less its tolerance
+    from the boost at full charge (``boost_return_event``, ``boost_return_corner``). In the
+    circuit coildrive designs it cannot (docs/design-method.md, "Boosted peak").
     """
 
     hold_decay: str
@@ -435,6 +441,9 @@ class BridgeResult:
     switches_on: dict[str, list[str]] = field(default_factory=dict)
     hold_fast_fraction: float | None = None
     hold_period_corner: str | None = None
+    boost_return_bound_v: float | None = None
+    boost_return_event: str | None = None
+    boost_return_corner: str | None = None
 
 
 @dataclass(frozen=True)
@@ -759,8 +768,9 @@ class Design(Verdict):
             topo = asdict(self.topology)
             if topo["bridge"] is None:
                 del topo["bridge"]
-            else:   # mixed decay's keys only where it is used (older outputs keep their bytes)
-                for key in ("hold_fast_fraction", "hold_period_corner"):
+            else:   # mixed decay's and a boost's keys only where used (older outputs keep their bytes)
+                for key in ("hold_fast_fraction", "hold_period_corner", "boost_return_bound_v",
+                            "boost_return_event", "boost_return_corner"):
                     if topo["bridge"][key] is None:
                         del topo["bridge"][key]
             out["topology"] = topo

@@ -91,6 +91,18 @@ def bridge_result(drive: Drive, grid: CornerGrid, res: PointResults, peak_end,
                worst_corner=grid.label(k_w), returned_per_hold_period_j=0.0, sink=sup.sink,
                capacitance_f=sup.capacitance, capacitor_rating_v=sup.capacitor_voltage,
                switches_on={phase: list(names) for phase, names in PHASES.items()})
+    if sup.boosted and sup.boost_capacitance > 0:
+        # a bound for a bridge wired so that its return reaches the boost capacitor (through
+        # Q_b's body diode): the same series RLC as the bus pump-up, onto C_b less its
+        # tolerance from the boost at full charge (Q_b's own drop left out: a higher bound)
+        v_top = sup.boost * (1.0 + sup.boost_tolerance)
+        c_b = sup.boost_capacitance * (1.0 - sup.boost_capacitance_tolerance)
+        rises = {event: pump_up(i, v_top + 0.0 * supply, c_b, lp.r_off, lp.inductance, lp.diode(drive)).v2
+                 for event, i in currents.items()}
+        ev = max(rises, key=lambda e: float(np.max(rises[e])))
+        k_b = worst(rises[ev])
+        out.update(boost_return_bound_v=float(rises[ev][k_b]), boost_return_event=ev,
+                   boost_return_corner=grid.label(k_b))
     if res.loop.mixed is not None:  # the fast part of every off-time returns V_bus x its charge
         per_period = supply * np.asarray(res.hold.charge_fast, float)
         k_h = worst(per_period)

@@ -165,9 +165,11 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
     if lp.mixed is not None:
         from .mixed_waveform import segments_of
 
-        return _mixed_actuation(drive, lp, supply, coil_temp, peak_time, i0, duty, frequency,
-                                hold_time, r_factor, l_factor, points, label, ts, cs, ons,
-                                segments_of(ind, v, r_on, r_off, lp.mixed, i0))
+        return boost_columns(drive, _mixed_actuation(drive, lp, supply, coil_temp, peak_time, i0, duty,
+                                                     frequency, hold_time, r_factor, l_factor, points,
+                                                     label, ts, cs, ons,
+                                                     segments_of(ind, v, r_on, r_off, lp.mixed, i0)),
+                             supply, peak_time, r_on, ind)
 
     # Hold: per-period start currents by scalar recurrence, then vectorised sampling.
     t_hold, i_hold, on_hold, t_offedge, i_off, _ = hold_samples(
@@ -197,7 +199,25 @@ def boost_columns(drive: Drive, w: "Waveform", supply: float, peak_time: float, 
         rail = np.where((w.time <= peak_time) & (w.switch_on == 1),
                         w.boost_voltage - w.current * drive.supply.boost_resistance, supply)
         w = dataclasses.replace(w, **node_columns(drive, rail, w.current, w.switch_on, w.switch_voltage))
+    elif w.switches is not None:   # a full bridge: Q_b feeds leg A's high side in the peak
+        w = _bridge_boost_columns(drive, w, peak_time)
     return w
+
+
+def _bridge_boost_columns(drive: Drive, w: "Waveform", peak_time: float) -> "Waveform":
+    """A full bridge's columns with a boosted peak (docs/design-method.md, "Boosted peak"):
+    in the peak the boost switch ``Q_b`` (column ``boost_on``) feeds leg A's rail, so the
+    coil sees the boost capacitor less ``(R_b + 2 R_sw + R_sense) i``, and Q2 holds off
+    leg A at the capacitor less ``(R_b + R_sw) i`` (the highest switch voltage; Q3 holds
+    off only the main bus). The hold and the release (into the main bus) are unchanged."""
+    sense = drive.board.sense
+    r_sw, r_b = drive.switch.on_resistance, drive.supply.boost_resistance
+    in_peak = (w.time <= peak_time) & (w.switch_on == 1)
+    i = w.current
+    coil = np.where(in_peak, w.boost_voltage - (r_b + 2.0 * r_sw + sense.resistance) * i, w.coil_voltage)
+    v_sw = np.where(in_peak, w.boost_voltage - (r_b + r_sw) * i, w.switch_voltage)
+    switches = {**w.switches, "boost": in_peak.astype(np.int8)}
+    return dataclasses.replace(w, coil_voltage=coil, switch_voltage=v_sw, switches=switches)
 
 
 def nominal_boost(drive: Drive, r_on: float, ind: float) -> boost_model.Boost:
