@@ -226,8 +226,10 @@ def _bridge_constants(d: Design, m: str) -> tuple[list[Constant], list[Constant]
     for phase, names in b.switches_on.items():
         mask = switch_mask(names)
         on = " + ".join(BRIDGE_SWITCHES[n][1].split(":")[0] for n in names) or "none"
-        phases.append(Constant(f"{m}_BRIDGE_{BRIDGE_PHASES[phase][0]}_SWITCHES", mask,
-                               f"{on} on -- {BRIDGE_PHASES[phase][1]}"))
+        what = BRIDGE_PHASES[phase][1]
+        if phase == "peak" and d.boost is not None:   # the boost switch feeds Q1's rail
+            what = what.replace("across the bus", "across the boost (with the boost switch)")
+        phases.append(Constant(f"{m}_BRIDGE_{BRIDGE_PHASES[phase][0]}_SWITCHES", mask, f"{on} on -- {what}"))
     return bits, phases
 
 

@@ -183,6 +183,11 @@ def topology_cautions(drive: Drive, result: TopologyResult | None) -> list[str]:
                        "everything on the bus (the supply's output, other loads, the bulk capacitor) must "
                        "take it, and repeated actuations pump it up further unless the bus discharges "
                        "between them.")
+        if b.boost_return_bound_v is not None:
+            out.append("With a boosted peak, wire leg B's high side (Q3) to the main bus, not to the "
+                       "boost switch's rail: there the fast decay's return would go up the boost switch's "
+                       f"body diode into the boost capacitor, up to {b.boost_return_bound_v:.3g} V. Q1's "
+                       "gate must be driven above the boost rail for the whole peak (common practice).")
         return out
     return [
         f"At turn-off the {result.switch_node} swings to {result.lowest_node_voltage_v:.3g} V "
