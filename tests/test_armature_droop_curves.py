@@ -170,3 +170,28 @@ def test_simulate_on_the_drooping_bus(tmp_path, fresh):
     ref = reference(fresh, p, 2.0, 220e-6, peak)
     assert float(np.min(data["bus_v"])) == pytest.approx(ref["low"], abs=1e-4)
     assert data["bus_v"][-1] == pytest.approx(10.8), "the hold and release on the stiff supply"
+
+
+@pytest.mark.parametrize("preload", [0.5, 1.0], ids=["seats", "falls-back"])
+def test_straight_curves_on_the_overshoot_are_the_linear_armature(preload):
+    """Two straight curves at L_open and L_closed are the linear armature (the gap's
+    reluctance, Fitzgerald & Kingsley ch. 1, from memory), whose drooping-bus run
+    tests/test_armature_droop.py checks against solve_ivp: a coil started by the current's
+    overshoot on a ringing bus that seats, or falls back to the open stop and waits there
+    (the held flight to the bound) -- the same outcome and figures within 1e-5."""
+    from coildrive.model.flux import FluxCurve
+    from coildrive.model.gap_curves import GapCurves
+
+    from test_armature_droop import _ringing
+
+    lin = _ringing(preload)
+    amps = np.array([0.0, 5.0, 10.0])
+    cur = dataclasses.replace(lin, curves=GapCurves(FluxCurve(amps, 0.5e-3 * amps), FluxCurve(amps, 2e-3 * amps),
+                                                    np.array([1.0]), lin.stroke))
+    a, b = pull_in(lin, peak_time=0.02), pull_in(cur, peak_time=0.02)
+    assert a.status[0] == b.status[0] == (SEATED if preload < 1 else 2)
+    for name in ("start_time", "seat_time", "peak_end_current", "stall_gap"):
+        got, want = getattr(b, name)[0], getattr(a, name)[0]
+        if np.isfinite(want):
+            assert got == pytest.approx(want, rel=1e-5), name
+    assert b.lowest_bus[0] == pytest.approx(a.lowest_bus[0], abs=1e-5 * 3.0)

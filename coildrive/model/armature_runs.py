@@ -21,6 +21,11 @@ from .rl import decay_current, decay_integrals, decay_time, rise_current, rise_i
 from . import supply as bus_model
 
 # --------------------------------------------------------------------------- pull-in
+#: With curves on a drooping bus: the least force (a fraction of the opening force at the
+#: open stop) the pull-in's time bound assumes (:func:`pull_in`).
+FORCE_FLOOR = 1e-3
+
+
 @dataclass(frozen=True)
 class PullInBatch:
     """Pull-in from rest at the open stop with the switch held on (arrays over points).
@@ -96,9 +101,13 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     low = low_until = None
     steps = np.zeros(n, int)
     if curved:
-        i_inf = p.v_on / (p.r_on + p.source_resistance)   # the steady current (the time bound's force)
-        f_inf = p.closing_force(p.flux_open(i_inf)) - p.opening_force(p.stroke)
-        stiff = is_stiff(p, np.where(f_inf > 0, f_inf, 1.0))
+        # the time bound's force: the curves' at the larger of the steady current and the
+        # small-signal bus's first maximum, floored at FORCE_FLOOR x the opening force (a
+        # start on the current's overshoot alone: a finite, generous bound)
+        i_inf = np.maximum(p.v_on / (p.r_on + p.source_resistance), bus_model.top_current(p.bus(True)))
+        f_inf = np.maximum(p.closing_force(p.flux_open(i_inf)) - p.opening_force(p.stroke),
+                           FORCE_FLOOR * p.opening_force(p.stroke))
+        stiff = is_stiff(p, f_inf)
         low_until = np.full(n, np.inf) if want is None else want
         low = np.stack([p.v_on.astype(float), np.zeros(n)])
         t_start, q0, s0, u_start, st = _held_rise(p, i_inf, stiff, rtol, want, query_y, low, low_until)
@@ -125,7 +134,8 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     rows = [np.where(moves, lam_start * (1.0 + 1e-12), 0.0), p.stroke.copy(), np.zeros(n), q0, s0]
     y = np.stack(rows + ([u_start] if droop else []))
     t = np.where(moves, t_start, 0.0)
-    f_inf = p.closing_force(p.flux_open(i_inf)) - p.opening_force(p.stroke)
+    if not curved:
+        f_inf = p.closing_force(p.flux_open(i_inf)) - p.opening_force(p.stroke)
     bound = np.where(moves, time_bound(t_start, p.l_closed, p.r_on, p.mass, p.stroke, p.damping, f_inf), np.inf)
     if droop:   # the bus's own time scale too
         bound = bound + BOUND_FACTOR * p.source_resistance * p.capacitance
