@@ -194,4 +194,6 @@ def test_straight_curves_on_the_overshoot_are_the_linear_armature(preload):
         got, want = getattr(b, name)[0], getattr(a, name)[0]
         if np.isfinite(want):
             assert got == pytest.approx(want, rel=1e-5), name
+        else:
+            assert not np.isfinite(got), name
     assert b.lowest_bus[0] == pytest.approx(a.lowest_bus[0], abs=1e-5 * 3.0)

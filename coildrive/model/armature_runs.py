@@ -203,8 +203,10 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
             y[2] = np.where(opn, 0.0, y[2])
             stuck = opn & (lam <= lam_start)
             if stuck.any() and curved:   # no closed form: held on the open stop until the start flux
-                fh = fly_mixed(p, t, y, bound, stuck, on, live, stiff, rtol, query=want, query_y=query_y,
-                               low=low, low_until=low_until, held=np.ones(n, bool), flux_to=lam_start)
+                # (no query: a peak ending in the wait is given no current, as on the linear
+                # coil -- the design then takes the worst case)
+                fh = fly_mixed(p, t, y, bound, stuck, on, live, stiff, rtol, low=low, low_until=low_until,
+                               held=np.ones(n, bool), flux_to=lam_start)
                 steps += np.where(stuck, fh.steps, 0)
                 reach = stuck & (fh.end == START)
                 status = np.where(stuck & ~reach, STALLED, status)
