@@ -1441,9 +1441,9 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     into the bus is :mod:`coildrive.model.bus_decay`, on a supply that cannot sink with
     the feed blocking). Any hold (the droop is the peak's; a regulated hold takes it out of
     the hold) and any freewheel path (a clamp's release, which draws from the bus, is
-    computed on the undrooped bus: the safe side). A moving armature: a linear coil, one
-    switch, a voltage-mode open-loop hold (the pull-in run carries the capacitor,
-    :mod:`coildrive.model.armature_runs`). Anything else is refused in one line rather
+    computed on the undrooped bus: the safe side). A moving armature: a linear coil or its
+    open and seated curves, one switch, a voltage-mode open-loop hold (the pull-in run
+    carries the capacitor, :mod:`coildrive.model.armature_runs`). Anything else is refused in one line rather
     than designed on a stiff bus."""
     if not supply.droops:
         return
@@ -1461,8 +1461,6 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
         key, why = "hold.regulation", "a full bridge with a closed-loop hold"
     elif armature is not None and switch.topology == "full_bridge":
         key, why = "armature", "a moving armature on a full bridge"
-    elif armature is not None and coil.flux_current:
-        key, why = "coil.flux_current", "a flux-linkage curve and a moving armature"
     elif armature is not None and _open_loop_refusal(hold, None):
         key, why = _open_loop_refusal(hold, None)
         why += " and a moving armature"
@@ -1470,8 +1468,7 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
                          f"{why}: expected source_resistance left out, or a coil with a curve or an "
                          "eddy term (not both; a full bridge: a voltage-mode, slow-decay, open-loop hold, "
-                         "no [armature]; an [armature]: a linear coil (an eddy term allowed), one switch and a voltage-mode "
-                         "open-loop hold)")
+                         "no [armature]; an [armature]: one switch and a voltage-mode open-loop hold)")
 
 
 def _read_boost(s: "_Section") -> tuple:

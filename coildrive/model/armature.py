@@ -67,6 +67,9 @@ BOUND_FACTOR = 20.0
 
 # Flight end codes
 RUNNING, SEAT, OPEN, ZERO, BOUND = 0, 1, 2, 3, 4
+#: A flight's end where an armature held at its stop (``fly(held=...)``) reached the asked
+#: flux linkage (``flux_to``): the current that starts it off the stop.
+START = 5
 
 # Outcome codes (PullInBatch.status, ReleaseBatch.status)
 SEATED, NO_START, STALLED = 0, 1, 2

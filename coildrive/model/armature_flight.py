@@ -36,7 +36,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .armature import BOUND, OPEN, RUNNING, SEAT, ZERO, ArmatureParams
+from .armature import BOUND, OPEN, RUNNING, SEAT, START, ZERO, ArmatureParams
 
 #: Hard cap on integrator steps per flight (never hang).
 MAX_STEPS = 20_000
@@ -71,8 +71,10 @@ class _Rhs:
     terminal current ``k (i + u/R_e)`` (what ``q``, ``sq`` integrate too).
     """
 
-    def __init__(self, p: ArmatureParams, on: np.ndarray, live: np.ndarray):
+    def __init__(self, p: ArmatureParams, on: np.ndarray, live: np.ndarray, held: np.ndarray | None = None):
         self.curves = p.curves
+        #: 0 where the armature is held at its stop (``x``, ``v`` frozen: a resting stretch), else 1
+        self.free = 1.0 if held is None else 1.0 - held.astype(float)
         self.inv_m = 1.0 / p.mass
         self.inv_lc = 1.0 / p.l_closed
         self.beta = p.beta
@@ -153,6 +155,8 @@ class _Rhs:
                 jac[:, 4, 0] = 2.0 * i * di_dl
                 jac[:, 4, 1] = 2.0 * i * di_dx
                 jac[:, 5, 5] -= self.on * self.inv_c * self.tu
+        jac[:, 1, :] *= np.reshape(self.free, (-1, 1))
+        jac[:, 2, :] *= np.reshape(self.free, (-1, 1))
         return jac
 
     def terminal_rate(self, y, dy):
@@ -194,8 +198,8 @@ class _Rhs:
             out[0] = self.live * (drive_v - self.drive_r * i)
         else:
             out[0] = self.live * (self.drive_v - self.drive_r * i)
-        out[1] = v
-        out[2] = self.f0 - self.km * x - pull - self.dm * v
+        out[1] = self.free * v
+        out[2] = self.free * (self.f0 - self.km * x - pull - self.dm * v)
         i = self.terminal(i, u)
         if self.droop:
             out[5] = self.g_s * (self.v_s - u) - self.on * self.inv_c * i
@@ -303,7 +307,8 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
         query: np.ndarray | None = None, query_y: np.ndarray | None = None,
         track: np.ndarray | None = None, peak: np.ndarray | None = None,
         max_steps: int = MAX_STEPS, stiff: bool = False, low: np.ndarray | None = None,
-        low_until: np.ndarray | None = None) -> Flight:
+        low_until: np.ndarray | None = None, held: np.ndarray | None = None,
+        flux_to: np.ndarray | None = None) -> Flight:
     """Integrate the free armature of every ``active`` point from ``t`` until a stop, the
     current reaching zero (switch off), or ``t_end``.
 
@@ -327,6 +332,9 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
     time in ``low`` (2 x N: V, s) up to ``low_until`` s (per point): at the accepted
     steps' ends and, inside a step where ``du/dt`` turns from falling to rising, at the
     minimum of its cubic Hermite interpolant
+    held, flux_to : where ``held``, the armature rests at its stop (``x`` and ``v``
+    frozen, no stop events): a resting stretch of a coil whose curves have no closed form
+    on the drooping bus; it ends (code START) where the flux linkage rises to ``flux_to`` Wb
 
     A batch of one point goes through :func:`fly_point` (Python floats: numpy's per-call
     overhead on 1-element arrays would dominate; same algorithm and results), unless
@@ -342,7 +350,9 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
     active = active.copy() & (t < t_end)
     end = np.where(active, RUNNING, BOUND)
     steps = np.zeros(n, int)
-    rhs = _Rhs(p, on, live)
+    rhs = _Rhs(p, on, live, held)
+    free = np.ones(n, bool) if held is None else ~held
+    target = np.full(n, np.inf) if flux_to is None else np.broadcast_to(flux_to, (n,))
     rows = [0, 1, 2]                 # the rows under error control
     scale = rtol * p.reference_scales()
     if p.droops:
@@ -374,15 +384,16 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
         ok = active & (norm <= 1.0)
         steps += active
         # stop events inside accepted steps
-        seat = ok & (y_new[1] < 0.0)
-        opn = ok & (y_new[1] > p.stroke)
+        seat = ok & free & (y_new[1] < 0.0)
+        opn = ok & free & (y_new[1] > p.stroke)
+        start = ok & ~free & (y_new[0] >= target)
         if rhs.t1 is None:
             zero = ok & ~on & live & (y_new[0] < 0.0)
         else:   # an eddy term: the freewheel stops where the terminal current reaches zero
             g_old, dg_old = rhs.terminal_rate(y, k1)
             g_new, dg_new = rhs.terminal_rate(y_new, k7)
             zero = ok & ~on & live & (g_new < 0.0)
-        hit = seat | opn | zero
+        hit = seat | opn | zero | start
         theta = np.ones(n)
         kind = np.zeros(n, int)
         y_full = y_new
@@ -391,7 +402,8 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
                     (seat, y[1], y_new[1], k1[1], k7[1], SEAT),
                     (opn, p.stroke - y[1], p.stroke - y_new[1], -k1[1], -k7[1], OPEN),
                     ((zero, y[0], y_new[0], k1[0], k7[0], ZERO) if rhs.t1 is None else
-                     (zero, g_old, g_new, dg_old, dg_new, ZERO))):
+                     (zero, g_old, g_new, dg_old, dg_new, ZERO)),
+                    (start, target - y[0], target - y_new[0], -k1[0], -k7[0], START)):
                 if mask.any():
                     th = np.where(mask, _root(g0, g1, d0, d1, h), 1.0)
                     first = mask & (th < theta)
@@ -426,7 +438,7 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
         k1 = np.where(ok & ~hit, k7, k1)
         if hit.any():
             k1 = np.where(hit, rhs(y), k1)
-        end = np.where(seat | opn | zero, kind, end)
+        end = np.where(hit, kind, end)
         done_t = ok & ~hit & (t >= t_end)
         end = np.where(done_t, BOUND, end)
         if record:

@@ -15,12 +15,17 @@ from dataclasses import dataclass
 import numpy as np
 
 from .armature import (BOUND, BOUND_FACTOR, MAX_BOUNCES, NO_START, NOT_OPEN, OPEN, OPENED, REST_FRACTION, SEAT,
-                       SEATED, STALLED, ZERO, ArmatureParams, time_bound)
+                       SEATED, STALLED, START, ZERO, ArmatureParams, time_bound)
 from .armature_flight import fly_mixed, is_stiff
 from .rl import decay_current, decay_integrals, decay_time, rise_current, rise_integrals, rise_time
 from . import supply as bus_model
 
 # --------------------------------------------------------------------------- pull-in
+#: With curves on a drooping bus: the least force (a fraction of the opening force at the
+#: open stop) the pull-in's time bound assumes (:func:`pull_in`).
+FORCE_FLOOR = 1e-3
+
+
 @dataclass(frozen=True)
 class PullInBatch:
     """Pull-in from rest at the open stop with the switch held on (arrays over points).
@@ -81,13 +86,35 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     rise before motion and the seated coil are the closed form of
     :mod:`coildrive.model.supply` (open, then seated inductance, from the state they
     start with), the flight integrates it with the motion; the lowest bus up to
-    ``peak_time`` is tracked through all three.
+    ``peak_time`` is tracked through all three. A coil with curves (``p.curves``) has no
+    closed form there: its resting stretches (the rise before the motion, a wait on the
+    open stop, the seat until ``peak_time``) are integrated by the same batched
+    integrator with the armature held at its stop (``fly(held=...)``).
     """
     n = len(p)
     droop = p.droops
+    curved = droop and p.curves is not None
     i_start = p.start_current
     l_open = p.coil_open
-    if droop:
+    want = None if peak_time is None else np.broadcast_to(np.asarray(peak_time, float), (n,)).copy()
+    query_y = np.full((6 if droop else 5, n), np.nan)
+    low = low_until = None
+    steps = np.zeros(n, int)
+    if curved:
+        # the time bound's force: the curves' at the larger of the steady current and the
+        # small-signal bus's first maximum, floored at FORCE_FLOOR x the opening force (a
+        # start on the current's overshoot alone: a finite, generous bound)
+        i_inf = np.maximum(p.v_on / (p.r_on + p.source_resistance), bus_model.top_current(p.bus(True)))
+        f_inf = np.maximum(p.closing_force(p.flux_open(i_inf)) - p.opening_force(p.stroke),
+                           FORCE_FLOOR * p.opening_force(p.stroke))
+        stiff = is_stiff(p, f_inf)
+        low_until = np.full(n, np.inf) if want is None else want
+        low = np.stack([p.v_on.astype(float), np.zeros(n)])
+        t_start, q0, s0, u_start, st = _held_rise(p, i_inf, stiff, rtol, want, query_y, low, low_until)
+        steps += st
+        moves = np.isfinite(t_start)
+        b_open = None
+    elif droop:
         b_open = p.bus(True)
         i_inf = bus_model.top_current(b_open)   # (the time bound's force: the most it drives)
         t_start = bus_model.rise_time(i_start, b_open)
@@ -102,10 +129,13 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
         q0, s0 = rise_integrals(np.where(moves, t_start, 0.0), 0.0, p.v_on, p.r_on, l_open)
     lam_start = p.flux_open(i_start)
     lam_stay = p.flux_closed(p.stay_current)
+    if curved:
+        t_start = np.where(moves, t_start, np.inf)
     rows = [np.where(moves, lam_start * (1.0 + 1e-12), 0.0), p.stroke.copy(), np.zeros(n), q0, s0]
     y = np.stack(rows + ([u_start] if droop else []))
     t = np.where(moves, t_start, 0.0)
-    f_inf = p.closing_force(p.flux_open(i_inf)) - p.opening_force(p.stroke)
+    if not curved:
+        f_inf = p.closing_force(p.flux_open(i_inf)) - p.opening_force(p.stroke)
     bound = np.where(moves, time_bound(t_start, p.l_closed, p.r_on, p.mass, p.stroke, p.damping, f_inf), np.inf)
     if droop:   # the bus's own time scale too
         bound = bound + BOUND_FACTOR * p.source_resistance * p.capacitance
@@ -116,16 +146,12 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     seat_current = nan.copy()
     stall_gap = np.where(moves, np.nan, p.stroke)
     bounces = np.zeros(n, int)
-    steps = np.zeros(n, int)
     # the running highest current (with an eddy term on a drooping bus the terminal
     # current, which depends on the bus too: tracked as it is, from the motion's start)
     sensed = droop and p.eddy is not None
     peak = np.stack([np.where(moves, p.terminal(i_start, True, bus=u_start) if sensed else i_start, 0.0),
                      np.where(moves, t_start, 0.0)])
-    want = None if peak_time is None else np.broadcast_to(np.asarray(peak_time, float), (n,)).copy()
-    query_y = np.full((y.shape[0], n), np.nan)
-    low = low_until = None
-    if droop:
+    if droop and not curved:
         low_until = np.full(n, np.inf) if want is None else want
         early = ~moves | (low_until < t_start)   # the peak ends in the rise before motion
         # (a coil that never moves, with no peak end: the bus's first minimum, or for ever
@@ -135,10 +161,12 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
         v_early, t_early = np.where(ever, v_early, b_open.v_ss), np.where(ever, t_early, np.inf)
         low = np.stack([np.where(early, v_early, u_start), np.where(early, t_early, t_start)])
     seat_bus = np.full(n, np.nan) if droop else None
+    seat_y = np.full_like(y, np.nan) if curved else None
     active = moves.copy()
     on = np.ones(n, bool)
     live = np.ones(n, bool)
-    stiff = is_stiff(p, np.where(moves, f_inf, 1.0))
+    if not curved:
+        stiff = is_stiff(p, np.where(moves, f_inf, 1.0))
     for _ in range(max_rounds):
         if not active.any():
             break
@@ -165,6 +193,8 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
         seat_current = np.where(holds, p.current(lam, 0.0), seat_current)
         if droop:
             seat_bus = np.where(holds, y[5], seat_bus)
+        if curved:
+            seat_y = np.where(holds, y, seat_y)
         active = active & ~holds
         # At the open stop with the force still too weak: rest there until the current
         # (closed form, open inductance) reaches the start current again.
@@ -172,7 +202,20 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
         if opn.any():
             y[2] = np.where(opn, 0.0, y[2])
             stuck = opn & (lam <= lam_start)
-            if stuck.any() and droop:
+            if stuck.any() and curved:   # no closed form: held on the open stop until the start flux
+                # (no query: a peak ending in the wait is given no current, as on the linear
+                # coil -- the design then takes the worst case)
+                fh = fly_mixed(p, t, y, bound, stuck, on, live, stiff, rtol, low=low, low_until=low_until,
+                               held=np.ones(n, bool), flux_to=lam_start)
+                steps += np.where(stuck, fh.steps, 0)
+                reach = stuck & (fh.end == START)
+                status = np.where(stuck & ~reach, STALLED, status)
+                stall_gap = np.where(stuck & ~reach, p.stroke, stall_gap)
+                active = active & ~(stuck & ~reach)
+                t = np.where(stuck, fh.t, t)
+                y = np.where(stuck, fh.y, y)
+                y[0] = np.where(reach, lam_start * (1.0 + 1e-12), y[0])
+            elif stuck.any() and droop:
                 i_now = p.current(lam, p.stroke)
                 u_now = y[5]
                 dt = bus_model.time_to(i_start, b_open, np.minimum(i_now, i_start), u_now,
@@ -220,7 +263,7 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
         peak_end = np.full(n, np.nan)
     elif droop:
         peak_end, low = _droop_peak_end(p, want, t_start, moves, seated, seat_time, seat_current,
-                                        seat_bus, query_y, low, b_open)
+                                        seat_bus, query_y, low, b_open, seat_y, stiff, rtol)
     else:
         before = want < np.where(moves, t_start, np.inf)
         after = seated & (want >= seat_time)
@@ -240,15 +283,49 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
                        lowest_bus_time=None if low is None else low[1], seat_bus=seat_bus)
 
 
+def _held_rise(p: ArmatureParams, i_inf, stiff, rtol, want, query_y, low, low_until):
+    """A coil with curves on a drooping bus, switched on at t = 0 with the armature held on
+    the open stop (the flight integrator, ``held``) until the flux reaches the start
+    current's: ``(t_start s (inf: never within the bound), int i dt A*s, int i^2 dt A^2*s,
+    the bus V then, steps)``; the state at ``want`` s goes into ``query_y``, the lowest
+    bus into ``low``. The bound: :data:`BOUND_FACTOR` times the slower of the open coil's
+    time constant (its small-signal or its secant inductance at the steady current
+    ``i_inf`` A, over ``R_on + R_s``) and ``R_s C``."""
+    n = len(p)
+    l_secant = p.flux_open(i_inf) / i_inf
+    tau = np.maximum(p.l_open, l_secant) / (p.r_on + p.source_resistance)
+    bound = BOUND_FACTOR * (tau + p.source_resistance * p.capacitance)
+    y0 = np.stack([np.zeros(n), p.stroke.astype(float), np.zeros(n), np.zeros(n), np.zeros(n),
+                   p.v_on.astype(float)])
+    ones = np.ones(n, bool)
+    fl = fly_mixed(p, np.zeros(n), y0, bound, ones, ones, ones, stiff, rtol, query=want, query_y=query_y,
+                   low=low, low_until=low_until, held=ones, flux_to=p.flux_open(p.start_current))
+    t_start = np.where(fl.end == START, fl.t, np.inf)
+    return t_start, fl.y[3], fl.y[4], fl.y[5], fl.steps
+
+
 def _droop_peak_end(p: ArmatureParams, want, t_start, moves, seated, seat_time, seat_current,
-                    seat_bus, query_y, low, b_open):
+                    seat_bus, query_y, low, b_open, seat_y=None, stiff=None, rtol: float = 1e-7):
     """On a drooping bus: the current (A) at ``want`` s, and the lowest bus (2 x N: V, s)
     over ``[0, want]`` completed -- before the motion the open coil's closed form, during
     it the flight's state there (``query_y``), on the seat the seated coil's closed form
-    from the seat's state (:func:`coildrive.model.supply.lowest_from`)."""
+    from the seat's state (:func:`coildrive.model.supply.lowest_from`). With curves
+    (``seat_y``: the state on the seat) the rise before the motion was flown already
+    (``query_y`` holds it) and the seat is flown held from ``seat_y`` to ``want``."""
     before = want < np.where(moves, t_start, np.inf)
     after = seated & (want >= seat_time)
     during = ~before & ~after
+    if seat_y is not None:
+        n = len(p)
+        ones = np.ones(n, bool)
+        t0 = np.where(after, seat_time, 0.0)
+        y0 = np.where(after, seat_y, 0.0)
+        fl = fly_mixed(p, t0, y0, np.where(after, want, 0.0), after, ones, ones, stiff, rtol,
+                       low=low, low_until=want, held=ones)
+        i_after = p.current(fl.y[0], 0.0)
+        got = (before | during) & np.isfinite(query_y[5]) & (query_y[5] < low[0])
+        low = np.stack([np.where(got, query_y[5], low[0]), np.where(got, want, low[1])])
+        return np.where(after, i_after, p.current(query_y[0], query_y[1])), low
     b_seat = p.bus(False)
     dt = np.where(after, want - seat_time, 0.0)
     i0 = np.where(after, seat_current, 0.0)

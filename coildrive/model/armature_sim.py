@@ -31,7 +31,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from . import armature_flight as _flight
-from .armature import (BOUND, MAX_BOUNCES, OPEN, REST_FRACTION, SEAT, ZERO, ArmatureParams,
+from .armature import (BOUND, MAX_BOUNCES, OPEN, REST_FRACTION, SEAT, START, ZERO, ArmatureParams,
                        time_bound)
 from .armature_flight import OnePoint, _hermite, _hermite5, _Rhs, fly, fly_point, is_stiff
 from .rl import decay_current, decay_integrals, decay_time, rise_current, rise_integrals, rise_time
@@ -155,10 +155,13 @@ class _Run:
         self.log.append((self.t, name))
 
 
-def _rest_segment(run: _Run, t_end: float, on: bool, points: int, stop) -> None:
+def _rest_segment(run: _Run, t_end: float, on: bool, points: int, stop, rtol: float = 1e-8) -> None:
     """Advance a resting armature (open or seated) in closed form until it leaves its
-    stop, the current reaches zero, or ``t_end``."""
+    stop, the current reaches zero, or ``t_end`` (a coil with curves switched on to a
+    drooping bus has no closed form: :func:`_rest_held`, at ``rtol``)."""
     pt = run.pt
+    if pt.droop and on and pt.p.curves is not None:
+        return _rest_held(run, t_end, rtol)
     if pt.droop:
         return _rest_segment_droop(run, t_end, on, points, stop)
     seated = run.state == "seated"
@@ -250,6 +253,37 @@ def _rest_end(run: _Run, dt: float, t_zero: float, t_leave: float, t_end: float,
             run.y[0] = pt.lam_start * (1.0 + 1e-12)
         run.state = "free"
         run.mark("unlatch" if seated else "move")
+
+
+def _rest_held(run: _Run, t_end: float, rtol: float) -> None:
+    """A resting armature of a coil with curves, switched on to the drooping bus: the flight
+    integrator with the armature held at its stop (``fly(held=...)``) until ``t_end`` or, on
+    the open stop, the flux reaching the start current's (the armature then moves)."""
+    pt = run.pt
+    seated = run.state == "seated"
+    run.live = True
+    if seated and pt.current(run.y[0], 0.0) < pt.i_stay:
+        run.state = "free"
+        return
+    if not seated and run.y[0] > pt.lam_start:
+        run.y[0] = pt.lam_start * (1.0 + 1e-12)
+        run.state = "free"
+        run.mark("move")
+        return
+    yes = np.array([True])
+    fl = fly(pt.p, np.array([run.t]), run.y[:, None], np.array([t_end]), yes, yes, yes, rtol,
+             record=True, stiff=pt.stiff, held=yes, flux_to=np.array([math.inf if seated else pt.lam_start]))
+    ts = np.array([a[0] for a in fl.path_t[1:]])
+    ys = np.array([a[:, 0] for a in fl.path_y[1:]]).T if len(fl.path_y) > 1 else np.zeros((pt.rows, 0))
+    keep = np.isfinite(ts)
+    if keep.any():
+        run.emit(ts[keep], ys[:, keep], True)
+    run.t = float(fl.t[0])
+    run.y = fl.y[:, 0].copy()
+    if int(fl.end[0]) == START:
+        run.y[0] = pt.lam_start * (1.0 + 1e-12)
+        run.state = "free"
+        run.mark("move")
 
 
 def _rest_segment_droop(run: _Run, t_end: float, on: bool, points: int, stop) -> None:
@@ -536,7 +570,7 @@ def simulate(p: ArmatureParams, schedule, state: str = "open", flux: float = 0.0
             if run.state == "free":
                 _free_segment(run, t_end, on, method, rtol, n)
             else:
-                _rest_segment(run, t_end, on, n, stop)
+                _rest_segment(run, t_end, on, n, stop, rtol)
             if len(run.log) != before[1] or run.state != before[0]:
                 stopped = stop(run)
         if stopped:
