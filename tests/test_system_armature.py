@@ -268,19 +268,3 @@ def test_droop_with_armatures_never_above_the_simulated_bus(system):
     print(f"reported {rail['lowest_bus_together_v']:.4f} V, simulated {low:.4f} V")
     assert rail["lowest_bus_together_v"] <= low + 1e-9
     assert v_s - rail["lowest_bus_together_v"] <= 1.15 * (v_s - low)
-
-
-def test_simulate_system_refuses_an_armature_in_one_line(system, tmp_path):
-    """``simulate SYSTEM.toml`` runs linear coils: an armature channel is refused, naming
-    the key (exit 2, one line)."""
-    folder = tmp_path
-    for f in (EXAMPLES / "manifold").glob("*.toml"):
-        shutil.copy(f, folder / f.name)
-    (folder / "purge-valve-24v.toml").write_text(
-        (folder / "purge-valve-24v.toml").read_text().replace('current = "0.09 A"', 'current = "0.15 A"')
-        + ARMATURE)
-    r = CliRunner().invoke(app, ["simulate", str(folder / "manifold-system.toml"), "--supply", "24",
-                                 "--coil-temp", "20", "--csv", str(folder / "out.csv")])
-    assert r.exit_code == 2
-    assert "armature" in r.stderr and len(r.stderr.strip().splitlines()) == 1
-    assert not (folder / "out.csv").exists()

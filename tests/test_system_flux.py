@@ -199,14 +199,3 @@ def test_a_curve_with_a_moving_armature_is_refused(tmp_path):
     assert r.exit_code == 2, r.output
     assert "armature:" in r.stderr and "not modelled in a system" in r.stderr, r.stderr
     assert len(r.stderr.strip().splitlines()) == 1
-
-
-def test_simulate_system_refuses_a_curve_in_one_line(tmp_path):
-    """``simulate SYSTEM.toml`` runs linear coils: a curve channel is refused, naming the
-    key (exit 2, one line, no CSV)."""
-    out = tmp_path / "out.csv"
-    r = CliRunner().invoke(app, ["simulate", str(_folder(tmp_path)), "--supply", "24", "--coil-temp", "20",
-                                 "--csv", str(out)])
-    assert r.exit_code == 2, r.output
-    assert "coil.flux_current" in r.stderr and len(r.stderr.strip().splitlines()) == 1
-    assert not out.exists()

@@ -7,16 +7,30 @@ follows the timer's output: on at every period start of the timer it is on (the 
 timer's, counting from 0 s, the first channel's switch-on), off at its own compare. The
 rail's current is the sum of the switches' currents (a coil's current while its switch
 conducts). Stiff bus: the source resistance's droop is not fed back into the coils.
+
+A channel with a moving armature, a flux-linkage curve, an eddy-current term or a full
+bridge runs the model's own single-channel actuation
+(:func:`coildrive.model.waveform.actuation`) as the reference driver switches it, in its
+once-a-period handler: on at the first period start of the shared timer at or after its
+offset, its peak to the first period start at or after its ticks' end (so its hold's
+periods are the timer's), then its whole periods of hold and the release. Its current
+between its own samples (at the other channels' sample times) is interpolated linearly;
+at a step (an eddy term's terminal current at a switching moment) the grid keeps the value
+after it. It draws its terminal current from the rail while its switch conducts; a full
+bridge's fast decay (all four switches open, the body diodes conducting) returns the
+current to the rail: negative.
 """
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
 
-from ..model.circuit import loop, split_decay
+from ..model.circuit import full_bridge, loop, split_decay
 from ..model.shared_pwm import ChannelRun, channel_run
+from ..model.waveform import actuation
 from .firmware import firmware_setting
 from .result import SystemResult
 
@@ -24,18 +38,22 @@ from .result import SystemResult
 @dataclass(frozen=True)
 class SystemRun:
     """The simulated system: the time grid ``time`` (s), the rail's current ``rail`` (A),
-    per channel (result order) its coil current ``current`` (A), switch state ``on`` (0/1),
-    its :class:`~coildrive.model.shared_pwm.ChannelRun` and the timer period (s) and
-    compare fraction its hold runs at."""
+    per channel (result order) its coil current ``current`` (A; the terminal current with
+    an eddy term), switch state ``on`` (0/1), its draw from the rail ``draw`` (A), its
+    :class:`~coildrive.model.shared_pwm.ChannelRun` (a linear coil on one switch) or its
+    :class:`~coildrive.model.waveform.Waveform` shifted to its switch-on ``start`` (s; module
+    docstring), and the timer period (s) and compare fraction its hold runs at."""
 
     names: list[str]
     time: np.ndarray
     rail: np.ndarray
     current: list[np.ndarray]
     on: list[np.ndarray]
-    runs: list[ChannelRun]
+    runs: list
     periods: list[float]
     duties: list[float]
+    draw: list[np.ndarray]
+    start: list[float]
 
     def to_csv(self) -> str:
         """``time_s``, ``current_a`` (the rail), ``<name>_current_a`` per channel, then
@@ -70,31 +88,78 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
                              f"channel {c.name!r}: simulate SYSTEM.toml runs every hold on the shared "
                              "timer, and a current-mode hold switches on its own thresholds; simulate "
                              "its drive file alone (coildrive simulate DRIVE.toml)")
-        for key, what, there in (("armature", "a moving armature", c.design.drive.armature is not None),
-                                 ("coil.flux_current", "a flux-linkage curve", bool(c.design.drive.coil.flux_current)),
-                                 ("coil.eddy_resistance", "an eddy-current term",
-                                  bool(c.design.drive.coil.eddy_resistance))):
-            if there:
-                raise InputError(c.design.drive.source, key,
-                                 f"channel {c.name!r}: simulate SYSTEM.toml runs linear coils on the shared "
-                                 f"timer, and {what} is not simulated in a system yet; simulate its drive "
-                                 "file alone (coildrive simulate DRIVE.toml)")
-    runs, periods, duties = [], [], []
+    runs, periods, duties, starts = [], [], [], []
     for c in result.channels:
         d = c.design
         drv = d.drive
         duty, peak = firmware_setting(d, supply, coil_temp)
+        period = 1.0 / d.hold.frequency_hz
+        periods.append(period)
+        duties.append(duty)
+        if own_waveform(drv):
+            t_on, t_peak = driver_peak(c.offset_s, peak, period)
+            runs.append(actuation(drv, supply, coil_temp, t_peak, duty, d.hold.frequency_hz, hold_time,
+                                  r_factor, l_factor, points, label=c.name))
+            starts.append(t_on)
+            continue
         lp = loop(drv, supply, coil_temp, r_factor, l_factor)
         rel = loop(drv, supply, coil_temp, r_factor, l_factor, path="release")
         slow = max(0.0, -drv.freewheel.bypass_lead) if split_decay(drv) else 0.0
-        period = 1.0 / d.hold.frequency_hz
         runs.append(channel_run(c.offset_s, peak, duty, period, hold_time, float(lp.v_on),
                                 float(lp.r_on), float(lp.r_off), float(lp.v_off), float(rel.r_off),
                                 float(rel.v_off), float(lp.inductance), slow))
-        periods.append(period)
-        duties.append(duty)
-    t = np.unique(np.concatenate([r.samples(points) for r in runs]))
-    current = [r.current(t) for r in runs]
-    on = [r.switch_on(t) for r in runs]
-    rail = np.sum([i * s for i, s in zip(current, on)], axis=0)
-    return SystemRun([c.name for c in result.channels], t, rail, current, on, runs, periods, duties)
+        starts.append(c.offset_s)
+    t = np.unique(np.concatenate([r.samples(points) if isinstance(r, ChannelRun) else r.time + s0
+                                  for r, s0 in zip(runs, starts)]))
+    current, on, draw = [], [], []
+    for r, s0 in zip(runs, starts):
+        if isinstance(r, ChannelRun):
+            i, sw = r.current(t), r.switch_on(t)
+            current.append(i)
+            on.append(sw)
+            draw.append(i * sw)
+        else:
+            i, sw, back = on_grid(r, s0, t)
+            current.append(i)
+            on.append(sw)
+            draw.append(i * sw - i * back)
+    rail = np.sum(draw, axis=0)
+    return SystemRun([c.name for c in result.channels], t, rail, current, on, runs, periods, duties,
+                     draw, starts)
+
+
+def own_waveform(drive) -> bool:
+    """True for a channel that runs the model's own single-channel actuation (a moving
+    armature, a flux-linkage curve, an eddy-current term or a full bridge)."""
+    return (drive.armature is not None or bool(drive.coil.flux_current)
+            or bool(drive.coil.eddy_resistance) or full_bridge(drive))
+
+
+def driver_peak(offset: float, peak: float, period: float) -> tuple[float, float]:
+    """``(switch-on, peak length)`` (s) as the reference driver runs a peak of ``peak`` s
+    from ``offset`` s in its once-a-period handler on a timer of ``period`` s counting from
+    0 s: on at the first period start at or after the offset, off-to-hold at the first
+    period start at or after the peak's end (at least one period of peak)."""
+    n_on = math.ceil(offset / period - 1e-9)
+    n_end = max(n_on + 1, math.ceil((offset + peak) / period - 1e-9))
+    return n_on * period, (n_end - n_on) * period
+
+
+def on_grid(w, start: float, t: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """A single-channel :class:`~coildrive.model.waveform.Waveform` switched on at ``start``
+    s, on the grid ``t`` (s): its current (A; linear between its samples, after a step at a
+    repeated time, 0 outside the run), its switch state (0/1, the sample at or before) and 1
+    where a full bridge's four switches are all open with current flowing (the fast decay
+    returning it to the rail), else 0."""
+    tw = w.time + start
+    last = np.append(tw[1:] != tw[:-1], True)          # the value after a step
+    tw, cur = tw[last], w.current[last]
+    k = np.clip(np.searchsorted(tw, t, side="right") - 1, 0, len(tw) - 1)
+    inside = (t >= tw[0]) & (t <= tw[-1])
+    i = np.where(inside, np.interp(t, tw, cur), 0.0)
+    sw = np.where(inside, w.switch_on[last][k], 0).astype(np.int8)
+    back = np.zeros(len(t), np.int8)
+    if w.switches is not None:
+        open_all = np.all([s[last][k] == 0 for s in w.switches.values()], axis=0)
+        back = (inside & open_all & (i > 0)).astype(np.int8)
+    return i, sw, back
