@@ -326,6 +326,9 @@ class VirtualDevice(LineOutput):
             ticks = design.pull_in.peak_ticks
         self.settings = Settings(ticks, design.timer.prescaler,
                                  design.timer.period_ticks, round(duty * design.timer.period_ticks))
+        if options.threshold_switch and self._thresholds is not None:
+            raise ValueError("a threshold switch averages the current over the PWM period of a voltage-mode "
+                             "hold; a current-mode hold has none fixed: leave it out")
         if options.threshold_switch and drive.armature is not None:
             raise ValueError("a threshold switch stands in for a coil without [armature]; this "
                              "drive's armature model has its own position switch: leave it out")
@@ -610,6 +613,10 @@ class VirtualDevice(LineOutput):
         if rel < peak:
             key = (max(rel, 1.0 / self.sample_rate), 0.0, freq, 0.0)
             rec.peak_cut = True
+        elif self._thresholds is not None:
+            # a current-mode hold: the switch opens at the first threshold turn-off at or after
+            # the command (the end of the hold of current_mode_actuation)
+            key = (peak, duty, freq, rel - peak)
         else:
             periods = int(math.floor((rel - peak) * freq)) + 1
             key = (peak, duty, freq, periods / freq)
