@@ -201,6 +201,10 @@ def test_current_mode_hold_arms_the_threshold_and_switches(tmp_path, control):
     assert in_hold.count(1) >= 2 and in_hold.count(0) >= 2, "the threshold switches the coil in the hold"
     if control == "off_time":
         assert {v for _, _, v in run.calls("o")} == {cm.off_ticks}, "the one-shot gets HOLD_OFF_TICKS"
+    # the tick that reports OFF opens the switch itself (same tick and conversion count), not
+    # the next conversion: the threshold handlers no longer switch outside HOLD
+    (off,) = [(t, c) for t, c, k, _ in run.calls("e") if k == EventKind.OFF]
+    assert off in [(t, c) for t, c, on in run.calls("s") if on == 0]
 
 
 def test_supply_compensated_peak_takes_its_length_from_the_header(tmp_path):

@@ -259,25 +259,64 @@ def _waveform_spread_ripple(w, frequency: float) -> float:
     return float(np.sqrt(12.0) * np.std(np.interp(grid, np.asarray(w.time), np.asarray(w.current))))
 
 
-def predict(design, point: OperatingPoint, hold_time: float) -> tuple[dict, object]:
-    """Predicted figures (SI) at ``point`` with the design's setting, and the model waveform
-    of one actuation with ``hold_time`` s of hold."""
-    from ..design.evaluate import evaluate
-    from ..model.waveform import actuation
-
-    drive = design.drive
+def _bench_drive(drive: Drive) -> Drive:
+    """The drive as a bench actuation sees it: the coil at the point's temperature (no
+    self-heating), a boost at its nominal parts."""
     cold = dataclasses.replace(drive, thermal=dataclasses.replace(drive.thermal, resistance=0.0))
     if drive.supply.boosted:   # nominal parts: the boost at its nominal too
         cold = dataclasses.replace(cold, supply=dataclasses.replace(
             drive.supply, boost_tolerance=0.0, boost_capacitance_tolerance=0.0))
+    return cold
+
+
+def _current_mode_point(design, point: OperatingPoint, peak: float):
+    """A current-mode hold at ``point``: the design's figures there
+    (:func:`coildrive.design.hold_current.evaluate_current`, its thresholds) as
+    ``(PointResults, CurrentModeSteadyState)`` of one point."""
+    from ..design.hold_current import evaluate_current
+
+    return evaluate_current(_bench_drive(design.drive), design.hold.thresholds,
+                            np.array([point.supply_v]), np.array([point.coil_temp_c]), 1.0, 1.0, peak)
+
+
+def hold_setting(design, point: OperatingPoint) -> tuple[float, float, float]:
+    """``(duty, frequency Hz, peak s)`` of the hold the firmware runs at ``point``: a PWM
+    hold's as its timer makes it; a current-mode hold's switching frequency and duty where
+    its thresholds settle there (unregulated: the switch stays on, duty 1, and the
+    design's frequency stands in for the analysis's period)."""
     from ..design import firmware_setting
 
     duty, peak = firmware_setting(design, point.supply_v, point.coil_temp_c)
-    freq = design.hold.frequency_hz
-    res = evaluate(cold, np.array([point.supply_v]), np.array([point.coil_temp_c]), 1.0, 1.0,
-                   duty, freq, peak)
-    w = actuation(cold, point.supply_v, point.coil_temp_c, peak, duty, freq, hold_time,
-                  label=f"model at {point.supply_v:.4g} V, {point.coil_temp_c:.4g} degC")
+    if design.hold.current_mode is None:
+        return duty, design.hold.frequency_hz, peak
+    _, cm = _current_mode_point(design, point, peak)
+    if not bool(cm.regulated[0]):
+        return 1.0, design.hold.frequency_hz, peak
+    return float(cm.duty[0]), float(cm.frequency[0]), peak
+
+
+def predict(design, point: OperatingPoint, hold_time: float) -> tuple[dict, object]:
+    """Predicted figures (SI) at ``point`` with the design's setting, and the model waveform
+    of one actuation with ``hold_time`` s of hold. A current-mode hold is predicted from
+    its thresholds (its figures at the point, and its waveform:
+    :func:`coildrive.design.hold_current.current_mode_actuation`)."""
+    from ..design.evaluate import evaluate
+    from ..model.waveform import actuation
+
+    drive = design.drive
+    cold = _bench_drive(drive)
+    duty, freq, peak = hold_setting(design, point)
+    label = f"model at {point.supply_v:.4g} V, {point.coil_temp_c:.4g} degC"
+    if design.hold.current_mode is not None:
+        from ..design.hold_current import current_mode_actuation
+
+        res, _ = _current_mode_point(design, point, peak)
+        w = current_mode_actuation(cold, design.hold.thresholds, point.supply_v, point.coil_temp_c,
+                                   peak, hold_time, label=label)
+    else:
+        res = evaluate(cold, np.array([point.supply_v]), np.array([point.coil_temp_c]), 1.0, 1.0,
+                       duty, freq, peak)
+        w = actuation(cold, point.supply_v, point.coil_temp_c, peak, duty, freq, hold_time, label=label)
     pred = {
         "pull_in_time_s": float(res.pull_in_time[0]),
         "peak_duration_s": float(peak),
@@ -291,6 +330,10 @@ def predict(design, point: OperatingPoint, hold_time: float) -> tuple[dict, obje
         "dropout_current_a": drive.release.current,
         "seated_time_s": None,
     }
+    if design.hold.current_mode is not None:
+        # after the peak a current-mode switch turns straight off (the current is above
+        # its upper threshold): the waveform's first switch-off is the peak's end
+        pred["first_off_s"] = float(peak)
     if drive.armature is not None or drive.coil.eddy_resistance:
         # the armature model's times mean other moments (at rest on a stop), an eddy term's
         # are the flux's (the magnetising current): the times the sensed current takes to
@@ -429,7 +472,7 @@ def check_capture(capture: Capture, design, tolerances: Tolerances | None = None
         theirs = getattr(meta, key)
         if theirs is not None and abs(theirs - mine) > 1e-6 * max(abs(mine), 1e-12):
             notes.append(f"the capture ran {key} = {theirs:.6g}, the design has {mine:.6g}")
-    f_hold = design.hold.frequency_hz
+    f_hold = hold_setting(design, point)[1]   # a current-mode hold's switching frequency there
     a = analyse(capture, pull_in_current=drive.pull_in.current,
                 dropout_current=drive.release.current, hold_frequency=f_hold,
                 use_events=use_events)
@@ -481,7 +524,8 @@ def check_capture(capture: Capture, design, tolerances: Tolerances | None = None
                                    + "; the drive has no [armature] model to predict it", tuple(seated),
                                    tuple(numbers)))
         from_waveform = acts[0].phases_from == "waveform"
-        pk = pred["peak_duration_s"] + (pred["hold_duty"] / f_hold if from_waveform else 0.0)
+        pk = pred.get("first_off_s", pred["peak_duration_s"] + (pred["hold_duty"] / f_hold if from_waveform
+                                                                   else 0.0))
         tick = 1.0 / board.tick.rate
         items.append(_row("peak_duration", "s", [x.peak_duration_s for x in acts], pk, tol.peak_duration,
                           2.0 * period + tick,

@@ -302,8 +302,12 @@ class VirtualDevice(LineOutput):
         self.options = options = options or DeviceOptions()
         self.design = design
         self.drive = drive = design.drive
-        if design.hold.current_mode is not None:
-            raise ValueError("the virtual device runs a voltage-mode (fixed duty) hold")
+        #: a current-mode hold: its thresholds end the hold's segments (the duty and
+        #: frequency settings are then the fixed-duty fallback's, not in force)
+        self._thresholds = design.hold.thresholds if design.hold.current_mode is not None else None
+        if self._thresholds is not None and drive.armature is not None:
+            raise ValueError("the virtual device runs a current-mode hold on a coil without [armature] "
+                             "for now (the moving armature's run has a PWM hold)")
         if not design.pull_in.peak_ticks:
             raise ValueError("the design has no peak phase (the pull-in current is never reached)")
         board = drive.board
@@ -322,6 +326,9 @@ class VirtualDevice(LineOutput):
             ticks = design.pull_in.peak_ticks
         self.settings = Settings(ticks, design.timer.prescaler,
                                  design.timer.period_ticks, round(duty * design.timer.period_ticks))
+        if options.threshold_switch and self._thresholds is not None:
+            raise ValueError("a threshold switch averages the current over the PWM period of a voltage-mode "
+                             "hold; a current-mode hold has none fixed: leave it out")
         if options.threshold_switch and drive.armature is not None:
             raise ValueError("a threshold switch stands in for a coil without [armature]; this "
                              "drive's armature model has its own position switch: leave it out")
@@ -494,6 +501,10 @@ class VirtualDevice(LineOutput):
                 return ReplyStatus.OUT_OF_RANGE, int(round(self.peak_time * 1e6))
             self.settings = Settings(ticks, s.prescaler, s.period_ticks, s.compare_ticks)
             return ReplyStatus.OK, int(round(self.peak_time * 1e6))
+        if self._thresholds is not None and op in (Opcode.SET_HOLD_DUTY, Opcode.SET_HOLD_FREQUENCY):
+            # a current-mode hold has no duty or frequency to set: its thresholds make them
+            return ReplyStatus.OUT_OF_RANGE, (self._duty_code() if op == Opcode.SET_HOLD_DUTY
+                                              else int(round(self.frequency)))
         if op == Opcode.SET_HOLD_DUTY:
             if arg > 0xFFFF:
                 return ReplyStatus.OUT_OF_RANGE, self._duty_code()
@@ -539,9 +550,24 @@ class VirtualDevice(LineOutput):
         """The model actuation for (peak s, duty, frequency Hz, hold s)."""
         o = self.options
         peak, duty, freq, hold = key
+        if self._thresholds is not None:
+            return actuation_waveform(self.drive, self.supply, self.coil_temp, peak, duty, freq, hold,
+                                      resistance_scale=o.resistance_scale,
+                                      inductance_scale=o.inductance_scale, fault=o.fault,
+                                      waveform=self._current_mode_waveform)
         return actuation_waveform(self.drive, self.supply, self.coil_temp, peak, duty, freq, hold,
                                   resistance_scale=o.resistance_scale,
                                   inductance_scale=o.inductance_scale, fault=o.fault)
+
+    def _current_mode_waveform(self, drive, supply, coil_temp, peak, duty, freq, hold, r_factor, l_factor,
+                               label=""):
+        """:func:`~coildrive.model.waveform.actuation`'s signature over the current-mode
+        hold's actuation (:func:`coildrive.design.hold_current.current_mode_actuation`:
+        the design's thresholds end the segments; ``duty`` and ``freq`` are not used)."""
+        from ..design.hold_current import current_mode_actuation
+
+        return current_mode_actuation(drive, self._thresholds, supply, coil_temp, peak, hold,
+                                      r_factor, l_factor, label=label)
 
     def _recording_span(self, hold_time: float) -> float:
         """s from the start of a recording to the end of its stream, at the settings in force."""
@@ -587,6 +613,10 @@ class VirtualDevice(LineOutput):
         if rel < peak:
             key = (max(rel, 1.0 / self.sample_rate), 0.0, freq, 0.0)
             rec.peak_cut = True
+        elif self._thresholds is not None:
+            # a current-mode hold: the switch opens at the first threshold turn-off at or after
+            # the command (the end of the hold of current_mode_actuation)
+            key = (peak, duty, freq, rel - peak)
         else:
             periods = int(math.floor((rel - peak) * freq)) + 1
             key = (peak, duty, freq, periods / freq)

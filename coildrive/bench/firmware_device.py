@@ -42,8 +42,13 @@ the main supply's diode taking over below the bus is left out (the design's
 
 A full bridge's mixed-decay hold (``hold.fast_fraction``): each off-time decays through
 the fast path (all four open) up to the timer count the driver gives through its
-``port_fast_end`` hook, then through the slow path. Current-mode holds are not run in the loop yet (the comparator would have to be
-stepped with the coil).
+``port_fast_end`` hook, then through the slow path.
+
+A current-mode hold (coil without ``[armature]`` or eddy term): the host port records the
+thresholds the driver arms and the off-time one-shot it starts; in the hold the device
+steps the comparator with the coil, event by event (:meth:`FirmwareDevice._step_current`),
+and calls the driver's threshold and off-timer handlers. The driver opens the switch in
+the tick that reports OFF (docs/firmware.md).
 """
 
 from __future__ import annotations
@@ -58,7 +63,7 @@ from ..model import boost as boost_model
 from ..model import eddy
 from ..model.circuit import loop
 from ..model.eddy import EddyCoil
-from ..model.rl import decay_current, rise_current
+from ..model.rl import decay_current, decay_time, rise_current, rise_time
 from .messages import Opcode, Reply, ReplyStatus
 from .device import BITS_PER_BYTE, DeviceOptions, DeviceStats, LineOutput, LogEntry
 from .synth import adc_scaling, faulty_drive, operating_point
@@ -69,6 +74,7 @@ LINE_AHEAD = 0.02
 MAX_STEP = 0.01
 STATE_OFF = 0
 STATE_PEAK = 1
+STATE_HOLD = 2
 STATE_FAULT = 4
 STATE_NAMES = ("off", "peak", "hold", "release", "fault")
 
@@ -89,6 +95,12 @@ def load_library(path: Path) -> ctypes.CDLL:
                             ("fil_reply", None, [u8, u32, ctypes.c_char_p])):
         fn = getattr(lib, name)
         fn.restype, fn.argtypes = res, args
+    # a current-mode driver's comparator and off-time one-shot (its port has them only then)
+    for name, res, args in (("fil_threshold", u32, []), ("fil_threshold_trip", None, [u8]),
+                            ("fil_off_timer", u32, []), ("fil_off_timer_expire", None, [])):
+        fn = getattr(lib, name, None)
+        if fn is not None:
+            fn.restype, fn.argtypes = res, args
     return lib
 
 
@@ -183,6 +195,13 @@ class FirmwareDevice(LineOutput):
             self._boost = boost_model.boost(s.boost, s.boost_capacitance, on.r_on + s.boost_resistance,
                                             on.inductance)
             self._boost_v, self._boost_t = float(s.boost), 0.0
+        #: a current-mode hold: the design's thresholds (the comparator's delay, the off
+        #: timer's prescaler), the off-time one-shot's expiry (device s) and a comparator
+        #: trip waiting out the delay (device s, above)
+        self._cm = design.hold.thresholds if design.hold.current_mode is not None else None
+        self._off_expiry: float | None = None
+        self._trip: tuple[float, bool] | None = None
+        self._spent: tuple[bool, int] | None = None
         self._take_frames()
 
     def boost_voltage(self, t: float) -> float:
@@ -214,8 +233,12 @@ class FirmwareDevice(LineOutput):
     @staticmethod
     def check_design(design) -> None:
         """``ValueError`` for a design the loop cannot run yet (see the module docstring)."""
-        if design.hold.current_mode is not None:
-            raise ValueError("firmware in the loop runs a voltage-mode (fixed duty or supply table) hold for now")
+        if design.hold.current_mode is not None and design.drive.armature is not None:
+            raise ValueError("firmware in the loop runs a current-mode hold on a coil without [armature] for now "
+                             "(the seated coil's thresholds after a moving pull-in are not stepped yet)")
+        if design.hold.current_mode is not None and design.drive.coil.eddy_resistance:
+            raise ValueError("firmware in the loop runs a current-mode hold without an eddy term "
+                             "(coil.eddy_resistance) for now: the comparator would see the terminal current's steps")
         if design.drive.armature is not None and design.drive.supply.droops:
             raise ValueError("firmware in the loop does not run a moving [armature] on a drooping bus "
                              "(supply.source_resistance) yet: emulate it without --firmware (the model's device)")
@@ -380,6 +403,9 @@ class FirmwareDevice(LineOutput):
             self.lib.fil_conversion(0, self._supply_code)     # the supply reading stays fresh
             self._take_frames()
             return n * T
+        if self._cm is not None and (self._state == STATE_HOLD or int(self.lib.fil_threshold()) >> 31
+                                     or self._off_expiry is not None):
+            return self._step_current(t0)
         out = self._outputs
         enable, compare = out >> 24 & 1, out & 0xFFFFFF
         on_end = t0 + (T * min(compare, self.period_counts) / self.period_counts if enable else 0.0)
@@ -514,6 +540,103 @@ class FirmwareDevice(LineOutput):
         if on_end < t0 + T or not full_on:
             self._flight_t0 = None           # seated (or cut short): the RL model of the seated coil
         self._t = t0 + T
+        self._take_frames()
+        return T
+
+    def _step_current(self, t0: float) -> float:
+        """One PWM period of a current-mode hold: the switch as the driver's threshold
+        handlers set it, the comparator stepped with the coil. Between events the current
+        is one closed-form segment (switch on: the rise; off: the freewheel decay, through
+        the hold's path while the bypass is closed); the events, in time order, are the
+        scheduler ticks, the period's conversion (middle of the period), the comparator's
+        trip ``hold.sense_delay`` after the sensed current crosses the armed threshold
+        (the high code's current switch on, the low code's switch off: code ``k`` is
+        ``k`` amps-per-code, the design's convention) and the off-time one-shot's expiry
+        (its counts at the design's off-time prescaler on the timer clock)."""
+        T = self.pwm_period
+        end, conv = t0 + T, t0 + 0.5 * T
+        ticks = []
+        while self._tick / self.tick_rate < end:
+            ticks.append(self._tick / self.tick_rate)
+            self._tick += 1
+        th, clock = self._cm, float(self.drive.board.timer.clock)
+        t, i = t0, self._i
+        converted = False
+        pieces = []                # (start s, end s, coil current function) of the period
+        for _ in range(10000):    # a handful of edges per period; the bound only stops a runaway
+            out = int(self.lib.fil_outputs())
+            on = bool(out >> 24 & 1)
+            lp = self._loops["hold" if (out >> 25 & 1 or not self._split()) else "release"]
+            ind = lp.inductance
+            i_seg, t_seg = i, t
+
+            def coil(x, i_seg=i_seg, t_seg=t_seg, on=on, lp=lp):
+                dt = np.maximum(np.asarray(x, float) - t_seg, 0.0)
+                c = rise_current(dt, i_seg, lp.v_on, lp.r_on, lp.inductance) if on else \
+                    decay_current(dt, i_seg, lp.r_off, lp.v_off, lp.inductance)
+                return np.zeros_like(c) if self.options.fault == "open" else c
+
+            def seg(x, coil=coil, on=on):      # what the sense resistor carries
+                c = coil(x)
+                return c if on or not self.sense_in_switch else np.zeros_like(c)
+
+            armed = int(self.lib.fil_threshold())
+            if self._spent is not None and self._spent != (on, armed):
+                self._spent = None         # a new segment or a new arming: the comparator can trip again
+            if self._trip is None and self._spent is None and armed >> 31:
+                lo, hi = (armed & 0xFFFF) * self._apc, (armed >> 16 & 0x7FFF) * self._apc
+                if on:
+                    dt = 0.0 if i >= hi else float(rise_time(hi, i, lp.v_on, lp.r_on, ind))
+                    if math.isfinite(dt):
+                        self._trip = (t + dt + th.delay_s, True)
+                elif th.control == "hysteretic" and i > lo:
+                    self._trip = (t + float(decay_time(lo, i, lp.r_off, lp.v_off, ind)) + th.delay_s, False)
+            times = [(end, "end")] + [(x, "tick") for x in ticks if x >= t]
+            if not converted:
+                times.append((conv, "conversion"))
+            if self._trip is not None:
+                times.append((max(self._trip[0], t), "trip"))
+            if self._off_expiry is not None:
+                times.append((max(self._off_expiry, t), "expiry"))
+            te, what = min(times, key=lambda x: x[0])
+            self._run_samples(t, te, seg)
+            pieces.append((t, te, coil))
+            i, t = float(coil(te)), te
+            if what == "end":
+                break
+            if what == "tick":
+                ticks.remove(te)
+                self._do_tick(te)
+            elif what == "conversion":
+                converted = True
+                code = int(self._codes(np.array([float(seg(te))]))[0])
+                self.lib.fil_conversion(code, self._supply_code)
+            elif what == "trip":
+                above = self._trip[1]
+                self._trip = None
+                # an edge: one interrupt per crossing (a handler that does not switch, as
+                # outside HOLD, leaves the comparator spent until the switch or arming changes)
+                self._spent = (on, armed)
+                self.lib.fil_threshold_trip(1 if above else 0)
+            else:
+                self._off_expiry = None
+                self.lib.fil_off_timer_expire()
+            started = int(self.lib.fil_off_timer())
+            if started:
+                self._off_expiry = t + (started - 1) * th.off_prescaler / clock
+            new = int(self.lib.fil_outputs())
+            if new >> 24 & 1 != on or (new >> 25 & 1) != (out >> 25 & 1) or not int(self.lib.fil_threshold()) >> 31:
+                self._trip = None          # another segment, or the comparator disarmed
+        else:
+            raise RuntimeError("the current-mode hold's switch chatters: more edges in one PWM period "
+                               "than the comparator can make")
+        self._i = i
+        self._outputs = int(self.lib.fil_outputs())
+        if self.trace is not None:      # the period's mean: midpoint rule, 64 points
+            x = t0 + (np.arange(64) + 0.5) * (T / 64)
+            mean = sum(float(np.sum(f(x[(x >= a) & (x < b)]))) for a, b, f in pieces) / 64
+            self.trace.append((t0, mean, self._state))
+        self._t = end
         self._take_frames()
         return T
 
