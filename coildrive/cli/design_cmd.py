@@ -57,6 +57,9 @@ def _run_latch(drive, as_json: bool, header: Optional[Path], plot: Optional[Path
 
     if samples:
         raise InputError("--samples", "", "a latching coil has no Monte Carlo yet, expected 0")
+    if plot is not None:
+        from ..design.latch import refuse_armature
+        refuse_armature(drive, "plot")
     result = design_latch(drive)
     if as_json:
         typer.echo(json.dumps(result.to_dict(), indent=2))
@@ -116,8 +119,10 @@ def _simulate_latch(drive, v: float, t: float, csv: Path, r_factor: float, l_fac
                     points: int, plot: Optional[Path]) -> None:
     """``simulate`` of a latching coil: the set pulse, then the reset pulse one shortest
     interval later (``--hold-time`` does not apply)."""
-    from ..design.latch import design_latch, winding_drive
+    from ..design.latch import design_latch, refuse_armature, winding_drive
     from ..model.latch_waveform import latch_actuation
+
+    refuse_armature(drive, "simulate")
 
     if plot is not None:
         raise InputError("--plot", "", "a latching coil has no plot yet: plot the CSV")

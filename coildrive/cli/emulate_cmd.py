@@ -144,12 +144,13 @@ def _latch_device(path: Path, drv, options, firmware: Optional[Path], fault: Opt
     """The virtual device of a latching coil (:class:`~coildrive.bench.latch_device.LatchDevice`)."""
     from ..bench.device import OptionError
     from ..bench.latch_device import LatchDevice
-    from ..design.latch import design_latch
+    from ..design.latch import design_latch, refuse_armature
 
     for option, given in (("--firmware", firmware is not None), ("--fault", fault is not None)):
         if given:
             raise InputError(option, "", "a latching coil's virtual device runs the design's pulses "
                              "(no generated driver, no fault to put in): leave it out")
+    refuse_armature(drv, "virtual device")
     d = design_latch(drv)
     try:
         device = LatchDevice(d, options)

@@ -35,11 +35,12 @@ import numpy as np
 
 from .. import __version__
 from ..config import Drive
+from ..errors import InputError
 from ..jsondoc import document_head, json_ready
 from ..model import latch as latch_model
 from ..model import supply as bus_model
 from ..model.bridge import pump_up
-from ..model.circuit import freewheel_element_energy, full_bridge, loop
+from ..model.circuit import freewheel_element_energy, full_bridge, loop, open_inductance
 from ..model.rl import decay_integrals, decay_time, rise_current, rise_integrals
 from ..model.topology import topology_of
 from .checks import SAFETY_CAUTION
@@ -72,6 +73,13 @@ class PulseResult:
     ``recharge_time_s`` how long it then needs to be back within the recharge tolerance
     (the longest, at ``recharge_corner``; its supply is the source's). ``lowest_node_v``:
     a high-side switch's node at the pulse's end, below ground (``None`` for the others).
+
+    With ``[armature]`` (module docstring): the set pulse's ``armature_j`` is the energy the
+    moving armature takes (spring, load, damping and the seat impact; ``supply_j`` is then
+    the sum of the other five), ``seat_time_s`` the latest time from switch-on to the
+    armature at rest on the seat (at ``seat_corner``); the reset pulse's ``open_time_s`` the
+    latest time from its start to the armature at rest on the open stop (the catch trips
+    at ``current_a``, then spring and load open it). ``None`` / 0 without an armature.
     """
 
     name: str
@@ -104,6 +112,10 @@ class PulseResult:
     recharge_time_s: float
     recharge_corner: str
     lowest_node_v: float | None = None
+    armature_j: float = 0.0
+    seat_time_s: float | None = None
+    seat_corner: str = ""
+    open_time_s: float | None = None
 
 
 @dataclass(frozen=True)
@@ -113,7 +125,8 @@ class LatchResult:
     pulse), ``interval_ticks`` in scheduler ticks, ``governed_by`` what sets it; its parts:
     ``decay_interval_s`` (the pulse and its decay to zero), ``thermal_interval_s`` (the
     coil's temperature; 0 without self-heating) and ``recharge_interval_s`` (the
-    capacitor; 0 on a stiff bus). ``pulse_heat_j``: the copper heat per pulse the
+    capacitor; 0 on a stiff bus) and ``armature_interval_s`` (a reset pulse's start to the
+    armature at rest on the open stop; 0 without ``[armature]``). ``pulse_heat_j``: the copper heat per pulse the
     thermal interval is for (the larger pulse's), ``coil_rise_per_pulse_k`` = that / the
     heat capacity, ``hottest_coil_c`` the coil just after a pulse when pulsing at the
     interval (from ``ambient.max``), ``coil_limit_c`` the limit."""
@@ -132,6 +145,7 @@ class LatchResult:
     coil_limit_c: float
     recharge_tolerance: float
     tick_rate_hz: float
+    armature_interval_s: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -186,7 +200,8 @@ def winding_drive(drive: Drive, reset: bool) -> Drive:
     """The drive as the model sees one winding: the set coil, or the reset winding in its
     place (the same coil on a bridge)."""
     if reset and drive.latch.reset_coil is not None:
-        return dataclasses.replace(drive, coil=drive.latch.reset_coil)
+        # the reset winding trips the catch on its own magnet: the armature is not its load
+        return dataclasses.replace(drive, coil=drive.latch.reset_coil, armature=None)
     return drive
 
 
@@ -209,8 +224,14 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     scale = 1.0 - lt.recharge_tolerance if droops else 1.0
     pts = _points(drive, coil, scale)
     lp = loop(wd, pts.supply, pts.temp, pts.r_factor, pts.l_factor, sense_factor=pts.sense_factor)
-    t_req = rise_time(wd, lp, current, lp.inductance)
-    t_force = rise_time(wd, lp, cm * current, lp.inductance)
+    pin = p_arm = None
+    if wd.armature is not None:   # the set pulse seats the armature (module docstring)
+        pin, p_arm = _seat_run(wd, lp, pts)
+        t_req = np.where(pin.status == 0, pin.seat_time, np.inf)
+        t_force = rise_time(wd, lp, cm * current, open_inductance(wd, pts.l_factor))
+    else:
+        t_req = rise_time(wd, lp, current, lp.inductance)
+        t_force = rise_time(wd, lp, cm * current, lp.inductance)
     ticks, by_time, by_force = requirement(drive, t_req, t_force, margin, settle)
     rate = drive.board.tick.rate
     k_req = worst(t_req)
@@ -222,15 +243,22 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
         need = current if ticks is None else cm * current
         not_reached = (f"not reached: steady current {float(i_inf[k]):.4g} A < {need:.4g} A at "
                        f"{pts.label(k)}")
+        if pin is not None and ticks is None and float(i_inf[k]) > current:
+            not_reached = (f"not reached: the armature does not seat at {pts.label(k_req)} (see the "
+                           "set_armature_seats check)")
         ticks = None
     governed = "" if ticks is None else ("force margin" if (by_force or 0) > (by_time or 0) else "time margin")
     t_long = ticks / rate if ticks else 0.0
     t_short = (ticks - 1) / rate if ticks else 0.0
-    i_end = rise_current_at(wd, lp, t_short)
     # energies of the longest pulse on a stiff bus (module docstring)
     v, r_on, ind = lp.v_on, lp.r_on, lp.inductance
-    q_on, s_on = rise_integrals(t_long, 0.0, v, r_on, ind)
-    i_top = rise_current(t_long, 0.0, v, r_on, ind)
+    if pin is not None and ticks:   # the pulse outlasts every seat time (margin >= 1)
+        i_end = _after_seat(pin, p_arm, t_short, v, r_on)[0]
+        i_top, q_on, s_on = _after_seat(pin, p_arm, t_long, v, r_on)
+    else:
+        i_end = rise_current_at(wd, lp, t_short)
+        q_on, s_on = rise_integrals(t_long, 0.0, v, r_on, ind)
+        i_top = rise_current(t_long, 0.0, v, r_on, ind)
     rel = loop(wd, pts.supply, pts.temp, pts.r_factor, pts.l_factor, path="release",
                sense_factor=pts.sense_factor)
     t_zero = decay_time(0.0, i_top, rel.r_off, rel.v_off, ind)
@@ -244,6 +272,8 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     sw_sense = n_sw * drive.switch.on_resistance * s_on + r_sense * (s_on + (s_d if sense_decay else 0.0))
     fw = freewheel_element_energy(wd, rel, q_d, s_d)
     returned = v * q_d if bridge else 0.0 * q_d
+    # the armature's share: what the supply gave that no element took (zero current at both ends)
+    moved = supply_e - copper - sw_sense - fw - returned if pin is not None and ticks else 0.0 * supply_e
     k_e = worst(supply_e)
     # the switch voltage at the end of the longest pulse, and a pumped bus
     v_sw = rel.switch_voltage(wd, i_top)
@@ -286,8 +316,15 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
         freewheel_j=float(fw[k_e]), returned_j=float(returned[k_e]), energy_corner=pts.label(k_e),
         decay_time_s=float(np.max(t_zero)), peak_switch_voltage_v=v_sw_top,
         switch_voltage_corner=pts.label(k_v), droop_v=droop, recharge_time_s=recharge,
-        recharge_corner=recharge_corner, lowest_node_v=node)
+        recharge_corner=recharge_corner, lowest_node_v=node, armature_j=float(moved[k_e]),
+        seat_time_s=None if pin is None else float(t_req[k_req]),
+        seat_corner="" if pin is None else pts.label(k_req))
     limit = drive.switch.max_voltage * drive.switch.derating
+    if pin is not None:
+        checks.append(_seats_check(drive, pin, p_arm, pts, result))
+    elif reset and drive.armature is not None:
+        result, check = _opens(drive, pts, t_req, result)
+        checks.append(check)
     checks.insert(0, Check(f"{name}_pulse", ticks is not None,
                            (f"{name} pulse {ticks} ticks ({t_long * 1e3:.4g} ms, {governed}): the shortest "
                             f"({t_short * 1e3:.4g} ms) carries {result.end_current_a:.4g} A >= "
@@ -298,6 +335,76 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
                         f"({result.switch_voltage_corner}) vs {limit:.4g} V ({drive.switch.derating:.0%} "
                         f"of the {drive.switch.max_voltage:.4g} V rating)"))
     return result, checks
+
+
+def _seat_run(drive: Drive, lp, pts: _Points):
+    """The set pulse held on from rest at the open stop until the armature rests on the seat,
+    at every pulse corner (:func:`coildrive.model.armature_runs.pull_in`), and its params."""
+    from ..model.armature import params_from_loop
+    from ..model.armature_runs import pull_in
+
+    p = params_from_loop(drive.armature, lp, pts.l_factor)
+    return pull_in(p), p
+
+
+def _after_seat(pin, p, t, v, r_on):
+    """Current A, ``int i dt`` A*s and ``int i^2 dt`` A^2*s ``t`` s after switch-on, ``t``
+    past every seat time: the run up to the seat, then the seated RL rise."""
+    dt = np.maximum(t - pin.seat_time, 0.0)
+    q, sq = rise_integrals(dt, pin.seat_current, v, r_on, p.l_closed)
+    return (rise_current(dt, pin.seat_current, v, r_on, p.l_closed), pin.seat_charge + q,
+            pin.seat_square + sq)
+
+
+def _seats_check(drive: Drive, pin, p, pts: _Points, r: PulseResult) -> Check:
+    """``set_armature_seats``: the armature rests on the seat at every corner before the
+    shortest set pulse ends (the catch then holds it)."""
+    bad = np.flatnonzero(pin.status != 0)
+    if bad.size == 0:
+        seat = (f"the armature rests on the seat {r.seat_time_s * 1e3:.4g} ms after switch-on at the "
+                f"latest ({r.seat_corner})")
+        return Check("set_armature_seats", r.ticks is not None,
+                     f"{seat}, within the shortest set pulse ({r.shortest_s * 1e3:.4g} ms)" if r.ticks else
+                     f"{seat}, but the set pulse has no length (see the set_pulse check)")
+    k = int(bad[0])
+    why = ("the coil never reaches the current that starts it off the open stop"
+           if pin.status[k] == 1 else f"it stalls {float(pin.stall_gap[k]) * 1e3:.3g} mm from the seat")
+    return Check("set_armature_seats", False,
+                 f"the armature does not seat at {bad.size} of {len(pin.status)} corners, e.g. "
+                 f"{pts.label(k)}: {why} -- a stronger coil, a higher supply or less spring and load")
+
+
+def _opens(drive: Drive, pts: _Points, t_trip, r: PulseResult) -> tuple[PulseResult, Check]:
+    """The reset pulse trips the catch when its current reaches ``reset.current`` (at
+    ``t_trip`` s per corner); spring and load then carry the armature, the set coil
+    carrying no current, to the open stop (:func:`coildrive.model.armature_runs.release`
+    from zero current; config makes spring_preload + load_force > 0 and spring_rate >= 0,
+    so they push it open over the whole stroke). ``reset_armature_opens`` fails where it
+    does not arrive within the run's bound."""
+    from ..model.armature import params_from_loop
+    from ..model.armature_runs import release
+
+    lp = loop(drive, pts.supply, pts.temp, pts.r_factor, pts.l_factor, sense_factor=pts.sense_factor)
+    p = params_from_loop(drive.armature, lp, pts.l_factor)
+    rb = release(p, 0.0)
+    t_open = np.where(rb.status == 0, t_trip + rb.open_time, np.inf)
+    k = worst(t_open)
+    r = dataclasses.replace(r, open_time_s=float(t_open[k]))
+    ok = bool(np.all(np.isfinite(t_open)))
+    return r, Check("reset_armature_opens", ok,
+                    f"the catch trips at {r.current_a:.4g} A and the armature rests on the open stop "
+                    f"{r.open_time_s * 1e3:.4g} ms after the reset pulse starts ({pts.label(k)})" if ok else
+                    "the armature does not reach the open stop after the catch trips")
+
+
+def refuse_armature(drive: Drive, what: str) -> None:
+    """Refuse, in one line naming ``armature``, what is not built yet for a latching coil
+    with a moving armature (its set pulse's current follows the armature, which the
+    pulses' time series do not model)."""
+    if drive.armature is not None:
+        raise InputError(drive.source, "armature", f"a latching coil with a moving armature has no {what} "
+                         "yet (the set pulse's current follows the armature): expected [armature] left "
+                         "out, or use design for the pulses")
 
 
 def rise_current_at(drive: Drive, lp, t) -> np.ndarray:
@@ -324,8 +431,9 @@ def design_latch(drive: Drive) -> LatchDesign:
         t_th = 0.0
     t_decay = max(p.time_s + p.decay_time_s for p in pulses)
     t_rc = max(p.time_s + p.recharge_time_s for p in pulses)
+    t_open = max(p.open_time_s or 0.0 for p in pulses)
     parts = {"the pulse and its decay to zero": t_decay, "the coil's temperature": t_th,
-             "the capacitor's recharge": t_rc}
+             "the capacitor's recharge": t_rc, "the armature's travel to the open stop": t_open}
     governed = max(parts, key=parts.get)
     interval = parts[governed]
     rate = drive.board.tick.rate
@@ -345,7 +453,8 @@ def design_latch(drive: Drive) -> LatchDesign:
     result = LatchResult(
         topology=drive.switch.topology, pulses=pulses, interval_s=interval, interval_ticks=ticks,
         governed_by=governed, decay_interval_s=t_decay, thermal_interval_s=t_th,
-        recharge_interval_s=t_rc if drive.supply.droops else 0.0, pulse_heat_j=heat,
+        recharge_interval_s=t_rc if drive.supply.droops else 0.0, armature_interval_s=t_open,
+        pulse_heat_j=heat,
         coil_rise_per_pulse_k=rise, hottest_coil_c=hottest, coil_limit_c=th.max_coil_temp,
         recharge_tolerance=drive.latch.recharge_tolerance, tick_rate_hz=rate)
     return LatchDesign(drive, result, checks, _cautions(drive, result), input_hash=drive.input_hash())
@@ -380,6 +489,7 @@ def latch_waveforms(d: LatchDesign) -> dict:
     from ..model.latch_waveform import latch_actuation
 
     drive = d.drive
+    refuse_armature(drive, "plot")
     by = {p.name: p for p in d.latch.pulses}
     scale = 1.0 - drive.latch.recharge_tolerance if drive.supply.droops else 1.0
     rt, lt = drive.coil.resistance_tolerance, drive.coil.inductance_tolerance

@@ -26,14 +26,20 @@ def latch_table(d: LatchDesign) -> Table:
         if p.ticks is None:
             t.add_row(f"{p.name} pulse", "none", escape(p.not_reached or ""))
             continue
+        worst = f"worst time to {p.current_a:.4g} A" if p.seat_time_s is None else "the armature's latest seat"
         t.add_row(f"{p.name} pulse", f"{p.time_s * 1e3:.4g} ms",
-                  escape(f"{p.ticks} ticks ({p.governed_by}); {p.switches}; worst time to {p.current_a:.4g} A "
+                  escape(f"{p.ticks} ticks ({p.governed_by}); {p.switches}; {worst} "
                          f"{p.worst_time_s * 1e3:.4g} ms ({p.worst_corner}); the shortest pulse carries "
                          f"{p.end_current_a:.4g} A there"))
+        if p.open_time_s is not None:
+            t.add_row("  armature open", f"{p.open_time_s * 1e3:.4g} ms",
+                      escape("latest, from the reset pulse's start: the catch trips at "
+                             f"{p.current_a:.4g} A, spring and load carry the armature to the open stop"))
         t.add_row(f"  energy per {p.name} pulse", f"{p.supply_j * 1e3:.4g} mJ",
                   escape(f"from the supply ({p.energy_corner}): copper {p.copper_j * 1e3:.4g} mJ, switches + "
                          f"sense {p.switch_sense_j * 1e3:.4g} mJ, freewheel path {p.freewheel_j * 1e3:.4g} mJ, "
-                         f"back to the bus {p.returned_j * 1e3:.4g} mJ"))
+                         f"back to the bus {p.returned_j * 1e3:.4g} mJ"
+                         + (f", the armature {p.armature_j * 1e3:.4g} mJ" if p.armature_j else "")))
         t.add_row(f"  after the {p.name} pulse", f"{p.decay_time_s * 1e3:.4g} ms",
                   escape(f"to zero current; switches up to {p.peak_switch_voltage_v:.4g} V "
                          f"({p.switch_voltage_corner})"
@@ -42,7 +48,8 @@ def latch_table(d: LatchDesign) -> Table:
     t.add_row("shortest interval", f"{r.interval_s * 1e3:.4g} ms" if r.interval_ticks else "none",
               escape(f"{r.interval_ticks} ticks, start to start ({r.governed_by}); decay "
                      f"{r.decay_interval_s * 1e3:.4g} ms, coil temperature {r.thermal_interval_s * 1e3:.4g} ms, "
-                     f"recharge {r.recharge_interval_s * 1e3:.4g} ms"))
+                     f"recharge {r.recharge_interval_s * 1e3:.4g} ms"
+                     + (f", armature {r.armature_interval_s * 1e3:.4g} ms" if r.armature_interval_s else "")))
     t.add_row("coil temperature", f"{r.hottest_coil_c:.4g} degC",
               escape(f"just after a pulse when pulsing at the interval: {r.pulse_heat_j * 1e3:.4g} mJ "
                      f"(+{r.coil_rise_per_pulse_k:.3g} K) a pulse, limit {r.coil_limit_c:g} degC"))

@@ -32,7 +32,8 @@ class PullInBatch:
     minimum; ``hump_current`` is the largest current before it (``dip_depth`` =
     hump - dip, 0 when the current never fell). ``seat_time``: at rest on the seat (after
     any bounces). ``peak_end_current``: the current at the asked time (end of the peak
-    phase). ``steps``: integrator steps taken.
+    phase). ``steps``: integrator steps taken. ``seat_charge``/``seat_square``: ``int i dt``
+    A*s and ``int i^2 dt`` A^2*s from switch-on to ``seat_time`` (NaN where not seated).
     """
 
     status: np.ndarray
@@ -51,6 +52,8 @@ class PullInBatch:
     peak_end_current: np.ndarray
     bound: np.ndarray
     steps: np.ndarray
+    seat_charge: np.ndarray | None = None
+    seat_square: np.ndarray | None = None
 
     @property
     def dip_depth(self) -> np.ndarray:
@@ -83,6 +86,7 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     impact_time, impact_speed, dip_current = nan.copy(), nan.copy(), nan.copy()
     seat_time = np.full(n, np.inf)
     seat_current = nan.copy()
+    seat_q, seat_s = nan.copy(), nan.copy()
     stall_gap = np.where(moves, np.nan, p.stroke)
     bounces = np.zeros(n, int)
     steps = np.zeros(n, int)
@@ -116,6 +120,7 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
         status = np.where(holds, SEATED, status)
         seat_time = np.where(holds, t, seat_time)
         seat_current = np.where(holds, p.current(lam, 0.0), seat_current)
+        seat_q, seat_s = np.where(holds, y[3], seat_q), np.where(holds, y[4], seat_s)
         active = active & ~holds
         # At the open stop with the force still too weak: rest there until the current
         # (closed form, open inductance) reaches the start current again.
@@ -158,7 +163,8 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
                        dip_current=dip_current, dip_time=dip_time, hump_current=hump,
                        hump_time=np.where(seated, peak[1], np.nan), seat_time=seat_time,
                        seat_current=seat_current, bounces=bounces, stall_gap=stall_gap,
-                       peak_end_current=peak_end, bound=bound, steps=steps)
+                       peak_end_current=peak_end, bound=bound, steps=steps,
+                       seat_charge=seat_q, seat_square=seat_s)
 
 
 def peak_current_closed_form(p: ArmatureParams, pin: PullInBatch, peak_time):
