@@ -146,3 +146,45 @@ def test_json_table_and_refusals(bolt, tmp_path):
     both.write_text(bridge.read_text() + "\n[armature]" + arm)
     res = runner.invoke(app, ["design", str(both)])
     assert res.exit_code == 2 and "armature" in res.output and "permanent magnet" in res.output
+
+
+# --------------------------------------------------------------------------- Monte Carlo
+@pytest.mark.parametrize("name", ["irrigation-valve-bridge-12v", "bistable-relay-reset-winding-24v"])
+def test_monte_carlo_never_outside_the_corner_envelope(name):
+    import dataclasses
+
+    from coildrive.design.latch_montecarlo import latch_monte_carlo, with_monte_carlo
+
+    d = with_monte_carlo(design_latch(load_drive(EXAMPLES / "latching" / f"{name}.toml")), 3000, seed=7)
+    mc = d.monte_carlo
+    for p in d.latch.pulses:
+        f = mc["pulses"][p.name]
+        # the samples lie in the corners' box, so the corners bound every sample
+        assert f["time_to_current_s"]["max"] <= p.worst_time_s * (1 + 1e-12), p.name
+        assert f["end_current_a"]["min"] >= p.end_current_a * (1 - 1e-12), p.name
+        assert f["supply_j"]["max"] <= p.supply_j * (1 + 1e-12), p.name
+        assert f["decay_time_s"]["max"] <= p.decay_time_s * (1 + 1e-12), p.name
+        assert mc["failures"][f"{p.name}_not_reached"] == mc["failures"][f"{p.name}_below_margin"] == 0
+    # a pulse cut to half the worst time to its current: samples miss it, and are counted
+    half = [dataclasses.replace(p, shortest_s=p.worst_time_s / 2) if p.name == "set" else p
+            for p in d.latch.pulses]
+    cut = dataclasses.replace(d, latch=dataclasses.replace(d.latch, pulses=half))
+    fails = latch_monte_carlo(cut, 500)["failures"]
+    assert 0 < fails["set_not_reached"] <= fails["set_below_margin"] < 500
+
+
+def test_monte_carlo_cli(tmp_path):
+    from typer.testing import CliRunner
+
+    from coildrive.cli import app
+
+    runner = CliRunner()
+    relay = EXAMPLES / "latching" / "bistable-relay-reset-winding-24v.toml"
+    out = runner.invoke(app, ["design", str(relay), "--samples", "200", "--seed", "3", "--json"])
+    assert out.exit_code == 0, out.output
+    mc = json.loads(out.stdout)["monte_carlo"]
+    assert mc["samples"] == 200 and mc["seed"] == 3 and set(mc["pulses"]) == {"set", "reset"}
+    table = runner.invoke(app, ["design", str(relay), "--samples", "200"], env={"COLUMNS": "200"})
+    assert "Monte Carlo: 200 samples" in table.output and "reset below margin: 0" in table.output
+    res = runner.invoke(app, ["design", str(BOLT), "--samples", "10"])
+    assert res.exit_code == 2 and "armature" in res.output and "Monte Carlo" in res.output

@@ -33,7 +33,7 @@ def _run_design(drive_path: Path, board: Optional[str], as_json: bool, header: O
         from ..codegen.header import check_prefix
         check_prefix(prefix)
     if drive.latch is not None:
-        _run_latch(drive, as_json, header, plot, prefix, samples)
+        _run_latch(drive, as_json, header, plot, prefix, samples, seed)
         return
     result = design(drive, samples=samples, seed=seed)
     if as_json:
@@ -51,16 +51,19 @@ def _run_design(drive_path: Path, board: Optional[str], as_json: bool, header: O
 
 
 def _run_latch(drive, as_json: bool, header: Optional[Path], plot: Optional[Path], prefix: str,
-               samples: int) -> None:
-    """``design`` of a latching coil: its table or JSON, and its header."""
-    from ..design.latch import design_latch
+               samples: int, seed: int) -> None:
+    """``design`` of a latching coil: its table or JSON (with ``--samples``, its Monte
+    Carlo), and its header."""
+    from ..design.latch import design_latch, refuse_armature
 
     if samples:
-        raise InputError("--samples", "", "a latching coil has no Monte Carlo yet, expected 0")
+        refuse_armature(drive, "Monte Carlo")
     if plot is not None:
-        from ..design.latch import refuse_armature
         refuse_armature(drive, "plot")
     result = design_latch(drive)
+    if samples:
+        from ..design.latch_montecarlo import with_monte_carlo
+        result = with_monte_carlo(result, samples, seed)
     if as_json:
         typer.echo(json.dumps(result.to_dict(), indent=2))
     else:

@@ -158,16 +158,19 @@ class LatchDesign(Verdict):
     cautions: list[str]
     version: str = __version__
     input_hash: str = ""
+    #: ``design --samples N``: :func:`coildrive.design.latch_montecarlo.with_monte_carlo`
+    monte_carlo: dict | None = None
 
     def to_dict(self) -> dict:
         """The ``design --json`` document of a latching coil."""
+        extra = {} if self.monte_carlo is None else {"monte_carlo": self.monte_carlo}
         return json_ready({**document_head(self.drive, self.version, self.input_hash), "ok": self.ok,
                            "latch": asdict(self.latch), "checks": [asdict(c) for c in self.checks],
-                           "cautions": list(self.cautions)})
+                           "cautions": list(self.cautions), **extra})
 
 
 @dataclass(frozen=True)
-class _Points:
+class Points:
     """The pulse corners: supply x coil temperature x resistance x inductance factors."""
 
     supply: np.ndarray
@@ -183,7 +186,7 @@ class _Points:
                 + ("" if sense == 1.0 else f", {tolerance_label('R_sense', sense)}"))
 
 
-def _points(drive: Drive, coil, scale: float) -> _Points:
+def _points(drive: Drive, coil, scale: float) -> Points:
     """Every corner of the pulses: the supply's ends (the lower one times ``scale``), the
     coil cold (``ambient.min``) and at its limit, and both ends of each tolerance (the
     coil's resistance and inductance, the sense resistor's)."""
@@ -193,7 +196,7 @@ def _points(drive: Drive, coil, scale: float) -> _Points:
                                   (drive.ambient.min, drive.thermal.max_coil_temp),
                                   sorted({1 - rt, 1 + rt}), sorted({1 - lt, 1 + lt}),
                                   sorted({1 - st, 1 + st})))
-    return _Points(*(np.array(a, float) for a in zip(*grid)))
+    return Points(*(np.array(a, float) for a in zip(*grid)))
 
 
 def winding_drive(drive: Drive, reset: bool) -> Drive:
@@ -223,7 +226,7 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     droops = drive.supply.droops
     scale = 1.0 - lt.recharge_tolerance if droops else 1.0
     pts = _points(drive, coil, scale)
-    lp = loop(wd, pts.supply, pts.temp, pts.r_factor, pts.l_factor, sense_factor=pts.sense_factor)
+    lp = pulse_loop(wd, pts)
     pin = p_arm = None
     if wd.armature is not None:   # the set pulse seats the armature (module docstring)
         pin, p_arm = _seat_run(wd, lp, pts)
@@ -257,10 +260,8 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
         i_top, q_on, s_on = _after_seat(pin, p_arm, t_long, v, r_on)
     else:
         i_end = rise_current_at(wd, lp, t_short)
-        q_on, s_on = rise_integrals(t_long, 0.0, v, r_on, ind)
-        i_top = rise_current(t_long, 0.0, v, r_on, ind)
-    rel = loop(wd, pts.supply, pts.temp, pts.r_factor, pts.l_factor, path="release",
-               sense_factor=pts.sense_factor)
+        i_top, q_on, s_on = plain_pulse(lp, t_long)
+    rel = release_loop(wd, pts)
     t_zero = decay_time(0.0, i_top, rel.r_off, rel.v_off, ind)
     q_d, s_d = decay_integrals(t_zero, i_top, rel.r_off, rel.v_off, ind)
     sense = drive.board.sense
@@ -305,7 +306,7 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
                                          s.capacitance)
         k_r = worst(t_rc)
         droop, recharge = float(np.max(dv)), float(t_rc[k_r])
-        recharge_corner = _Points(full.v_on, pts.temp, pts.r_factor, pts.l_factor, pts.sense_factor).label(k_r)
+        recharge_corner = Points(full.v_on, pts.temp, pts.r_factor, pts.l_factor, pts.sense_factor).label(k_r)
     result = PulseResult(
         name=name, winding=winding, switches=switches, current_a=current, margin=margin,
         current_margin=cm, settle_time_s=settle, ticks=ticks, time_s=t_long, shortest_s=t_short,
@@ -337,7 +338,25 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     return result, checks
 
 
-def _seat_run(drive: Drive, lp, pts: _Points):
+def plain_pulse(lp, t):
+    """A pulse of ``t`` s from zero current on a stiff bus at the points of ``lp`` (the RL
+    rise): its current at the end A, ``int i dt`` A*s and ``int i^2 dt`` A^2*s."""
+    q, sq = rise_integrals(t, 0.0, lp.v_on, lp.r_on, lp.inductance)
+    return rise_current(t, 0.0, lp.v_on, lp.r_on, lp.inductance), q, sq
+
+
+def pulse_loop(drive: Drive, pts: Points):
+    """The winding's loop with its switch(es) on at the points."""
+    return loop(drive, pts.supply, pts.temp, pts.r_factor, pts.l_factor, sense_factor=pts.sense_factor)
+
+
+def release_loop(drive: Drive, pts: Points):
+    """The winding's decay path after a pulse at the points."""
+    return loop(drive, pts.supply, pts.temp, pts.r_factor, pts.l_factor, path="release",
+                sense_factor=pts.sense_factor)
+
+
+def _seat_run(drive: Drive, lp, pts: Points):
     """The set pulse held on from rest at the open stop until the armature rests on the seat,
     at every pulse corner (:func:`coildrive.model.armature_runs.pull_in`), and its params."""
     from ..model.armature import params_from_loop
@@ -356,7 +375,7 @@ def _after_seat(pin, p, t, v, r_on):
             pin.seat_square + sq)
 
 
-def _seats_check(drive: Drive, pin, p, pts: _Points, r: PulseResult) -> Check:
+def _seats_check(drive: Drive, pin, p, pts: Points, r: PulseResult) -> Check:
     """``set_armature_seats``: the armature rests on the seat at every corner before the
     shortest set pulse ends (the catch then holds it)."""
     bad = np.flatnonzero(pin.status != 0)
@@ -374,7 +393,7 @@ def _seats_check(drive: Drive, pin, p, pts: _Points, r: PulseResult) -> Check:
                  f"{pts.label(k)}: {why} -- a stronger coil, a higher supply or less spring and load")
 
 
-def _opens(drive: Drive, pts: _Points, t_trip, r: PulseResult) -> tuple[PulseResult, Check]:
+def _opens(drive: Drive, pts: Points, t_trip, r: PulseResult) -> tuple[PulseResult, Check]:
     """The reset pulse trips the catch when its current reaches ``reset.current`` (at
     ``t_trip`` s per corner); spring and load then carry the armature, the set coil
     carrying no current, to the open stop (:func:`coildrive.model.armature_runs.release`
@@ -384,8 +403,7 @@ def _opens(drive: Drive, pts: _Points, t_trip, r: PulseResult) -> tuple[PulseRes
     from ..model.armature import params_from_loop
     from ..model.armature_runs import release
 
-    lp = loop(drive, pts.supply, pts.temp, pts.r_factor, pts.l_factor, sense_factor=pts.sense_factor)
-    p = params_from_loop(drive.armature, lp, pts.l_factor)
+    p = params_from_loop(drive.armature, pulse_loop(drive, pts), pts.l_factor)
     rb = release(p, 0.0)
     t_open = np.where(rb.status == 0, t_trip + rb.open_time, np.inf)
     k = worst(t_open)

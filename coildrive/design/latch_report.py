@@ -7,6 +7,7 @@ from rich.markup import escape
 from rich.table import Table
 
 from ..console import print_cautions, print_verdict
+from ..units import format_si
 from .latch import LatchDesign
 from .report import checks_table
 
@@ -56,10 +57,33 @@ def latch_table(d: LatchDesign) -> Table:
     return t
 
 
+def latch_monte_carlo_table(mc: dict) -> Table:
+    """rich table of the pulses' Monte Carlo (percentiles and max; min for the current)."""
+    levels = mc["percentiles"]
+    t = Table(title=f"Monte Carlo: {mc['samples']} samples ({mc['distribution']} tolerances, seed {mc['seed']})")
+    t.add_column("figure")
+    t.add_column("min", justify="right")
+    for q in levels:
+        t.add_column(f"p{q:g}", justify="right")
+    t.add_column("max", justify="right")
+    rows = {"time_to_current_s": ("time to its current", "s"),
+            "end_current_a": ("current, shortest pulse", "A"),
+            "supply_j": ("energy, longest pulse", "J"), "decay_time_s": ("then to zero", "s")}
+    for name, figs in mc["pulses"].items():
+        for key, (label, unit) in rows.items():
+            f = figs[key]
+            cells = ["-" if v is None else format_si(v, unit) for v in [f["min"], *f["values"], f["max"]]]
+            t.add_row(f"{name}: {label}", *cells)
+    t.caption = ", ".join(f"{k.replace('_', ' ')}: {v}" for k, v in mc["failures"].items())
+    return t
+
+
 def print_latch(d: LatchDesign, console: Console | None = None) -> None:
     """Print the pulses, the checks and the cautions."""
     console = console or Console()
     console.print(latch_table(d))
     console.print(checks_table(d))
+    if d.monte_carlo is not None:
+        console.print(latch_monte_carlo_table(d.monte_carlo))
     print_cautions(console, d.cautions)
     print_verdict(console, d.ok, "design ok", "design FAILED", [c.name for c in d.failed])
