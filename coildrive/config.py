@@ -1776,8 +1776,6 @@ def _latch_drive(source, path, data, brd, coil, sheet, supply, ambient, thermal,
         key, why = "coil", "the coil's datasheet voltages (give resistance and the currents)"
     elif coil.flux_current:
         key, why = "coil.flux_current", "a flux-linkage curve"
-    elif duty is not None:
-        key, why = "duty", "an on/off cycle (the design gives the shortest interval instead)"
     elif pull_in.compensate:
         key, why = "pull_in.compensate", "a supply-compensated peak"
     elif thermal.resistance > 0 and not thermal.capacity > 0:

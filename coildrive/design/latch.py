@@ -119,6 +119,24 @@ class PulseResult:
 
 
 @dataclass(frozen=True)
+class LatchCycle:
+    """An on/off cycle of a latching coil (``[duty]``, ``design --json`` ``latch.cycle``): a
+    set pulse every ``period_s`` (``actuation_rate_hz``), the reset pulse ``on_time_s``
+    after it, the next set ``off_time_s`` after that. ``set_rise_k``/``reset_rise_k``: the
+    coil's rise above ``ambient.max`` just after each in the periodic steady state of the
+    pulses' copper heat (both windings one thermal body, as the interval's), and
+    ``hottest_coil_c`` the larger + ``ambient.max``."""
+
+    on_time_s: float
+    off_time_s: float
+    period_s: float
+    actuation_rate_hz: float
+    set_rise_k: float
+    reset_rise_k: float
+    hottest_coil_c: float
+
+
+@dataclass(frozen=True)
 class LatchResult:
     """The latching coil's design (``design --json`` key ``latch``). ``interval_s``: the
     shortest safe time from the start of one pulse to the start of the next (either
@@ -146,6 +164,7 @@ class LatchResult:
     recharge_tolerance: float
     tick_rate_hz: float
     armature_interval_s: float = 0.0
+    cycle: LatchCycle | None = None
 
 
 @dataclass(frozen=True)
@@ -468,14 +487,46 @@ def design_latch(drive: Drive) -> LatchDesign:
                         f"one pulse's copper heat {heat:.4g} J raises the coil {rise:.3g} K, past the "
                         f"{limit:.4g} K between the hottest ambient and thermal.max_coil_temp -- a shorter "
                         "pulse, a higher supply or a coil with more heat capacity"))
+    cycle = None
+    if drive.duty is not None:
+        cycle, more = _cycle(drive, pulses, interval)
+        checks += more
     result = LatchResult(
-        topology=drive.switch.topology, pulses=pulses, interval_s=interval, interval_ticks=ticks,
+        topology=drive.switch.topology, pulses=pulses, interval_s=interval, interval_ticks=ticks, cycle=cycle,
         governed_by=governed, decay_interval_s=t_decay, thermal_interval_s=t_th,
         recharge_interval_s=t_rc if drive.supply.droops else 0.0, armature_interval_s=t_open,
         pulse_heat_j=heat,
         coil_rise_per_pulse_k=rise, hottest_coil_c=hottest, coil_limit_c=th.max_coil_temp,
         recharge_tolerance=drive.latch.recharge_tolerance, tick_rate_hz=rate)
     return LatchDesign(drive, result, checks, _cautions(drive, result), input_hash=drive.input_hash())
+
+
+def _cycle(drive: Drive, pulses: list[PulseResult], interval: float) -> tuple[LatchCycle, list[Check]]:
+    """The on/off cycle (``[duty]``): set at its start, reset ``on_time`` later; the coil's
+    temperature just after each pulse (:func:`coildrive.model.latch.cycle_rises`, from
+    ``ambient.max``; none without self-heating) and both spacings against the shortest
+    interval."""
+    du, th = drive.duty, drive.thermal
+    by = {p.name: p for p in pulses}
+    if th.resistance > 0:
+        rs, rr = (float(x) for x in latch_model.cycle_rises(by["set"].copper_j, by["reset"].copper_j,
+                                                            du.on_time, du.off_time, th.capacity,
+                                                            th.time_constant))
+    else:
+        rs = rr = 0.0
+    hottest = drive.ambient.max + max(rs, rr)
+    cycle = LatchCycle(du.on_time, du.off_time, du.period, du.actuation_rate, rs, rr, hottest)
+    short = min(du.on_time, du.off_time)
+    checks = [Check("duty_interval", short >= interval,
+                    f"set to reset {du.on_time * 1e3:.4g} ms, reset to the next set {du.off_time * 1e3:.4g} ms "
+                    f"vs the shortest safe interval {interval * 1e3:.4g} ms" if math.isfinite(interval) else
+                    "no interval between pulses is safe (see the coil_temperature check)"),
+              Check("duty_coil_temperature", hottest <= th.max_coil_temp,
+                    f"at {du.actuation_rate:.4g} cycles/s the coil is at most {hottest:.4g} degC just after a "
+                    f"pulse (set +{rs:.3g} K, reset +{rr:.3g} K over a {drive.ambient.max:g} degC ambient; "
+                    f"limit {th.max_coil_temp:g} degC)" if th.resistance > 0 else
+                    "no self-heating (thermal.resistance = 0): the coil stays at the ambient")]
+    return cycle, checks
 
 
 def _cautions(drive: Drive, r: LatchResult) -> list[str]:

@@ -51,6 +51,12 @@ def latch_table(d: LatchDesign) -> Table:
                      f"{r.decay_interval_s * 1e3:.4g} ms, coil temperature {r.thermal_interval_s * 1e3:.4g} ms, "
                      f"recharge {r.recharge_interval_s * 1e3:.4g} ms"
                      + (f", armature {r.armature_interval_s * 1e3:.4g} ms" if r.armature_interval_s else "")))
+    if r.cycle is not None:
+        c = r.cycle
+        t.add_row("on/off cycle", f"{c.actuation_rate_hz:.4g} /s",
+                  escape(f"set, reset {c.on_time_s * 1e3:.4g} ms later, the next set {c.off_time_s * 1e3:.4g} ms "
+                         f"after that; the coil at most {c.hottest_coil_c:.4g} degC just after a pulse "
+                         f"(set +{c.set_rise_k:.3g} K, reset +{c.reset_rise_k:.3g} K)"))
     t.add_row("coil temperature", f"{r.hottest_coil_c:.4g} degC",
               escape(f"just after a pulse when pulsing at the interval: {r.pulse_heat_j * 1e3:.4g} mJ "
                      f"(+{r.coil_rise_per_pulse_k:.3g} K) a pulse, limit {r.coil_limit_c:g} degC"))
