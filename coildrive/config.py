@@ -1772,12 +1772,19 @@ def _latch_drive(source, path, data, brd, coil, sheet, supply, ambient, thermal,
                  release, armature, duty, latch) -> Drive:
     """A latching coil's :class:`Drive`: what it is not designed with is refused in one line."""
     why = None
-    if sheet or coil.rated_voltage:
-        key, why = "coil", "the coil's datasheet voltages (give resistance and the currents)"
+    if coil.drop_out_voltage:
+        key, why = "coil.drop_out_voltage", ("a drop-out voltage: it stays where its last pulse put it "
+                                             "(give the reset pulse's current in [reset])")
+    elif coil.operate_time or coil.release_time:
+        key = "coil.operate_time" if coil.operate_time else "coil.release_time"
+        why = ("the datasheet's operate or release time: they time a monostable coil's peak and "
+               "release, which it does not have")
     elif coil.flux_current:
-        key, why = "coil.flux_current", "a flux-linkage curve"
+        key, why = "coil.flux_current", ("a flux-linkage curve (its pulses would need the curve's "
+                                         "segments at every corner)")
     elif pull_in.compensate:
-        key, why = "pull_in.compensate", "a supply-compensated peak"
+        key, why = "pull_in.compensate", ("a supply-compensated peak (its header has no table of "
+                                          "pulse lengths against the measured supply)")
     elif thermal.resistance > 0 and not thermal.capacity > 0:
         key, why = "thermal.capacity", ("no heat capacity (the pulses' heat and the interval between "
                                         "them need it: give thermal.capacity or time_constant)")

@@ -1,6 +1,6 @@
 """A latching coil's on/off cycle ([duty]): the coil's temperature just after each pulse
 worked by hand and against a pulse-by-pulse march, and both spacings against the
-design's shortest interval."""
+design's shortest interval; its coil given by datasheet voltages, and what is refused."""
 
 from __future__ import annotations
 
@@ -51,3 +51,30 @@ def test_cycle_in_the_design_and_its_checks(tmp_path):
     d = design_latch(load_drive(fast))
     check = next(x for x in d.checks if x.name == "duty_interval")
     assert not check.ok and "20 ms" in check.detail and not d.ok
+
+
+RELAY = EXAMPLES / "latching" / "bistable-relay-reset-winding-24v.toml"
+
+
+def test_datasheet_voltages_give_the_set_coil(tmp_path):
+    from typer.testing import CliRunner
+
+    from coildrive.cli import app
+
+    text = RELAY.read_text().replace('resistance = "360 ohm"       # at reference_temp',
+                                     'rated_voltage = "24 V"\nrated_power = "1.6 W"\n'
+                                     'pick_up_voltage = "14 V"\nstated_temp = "20 degC"', 1)
+    sheet = tmp_path / "sheet.toml"
+    text = text.replace('current = "25 mA"\n', "", 1)
+    sheet.write_text(text)
+    d = design_latch(load_drive(sheet))
+    got = {v.key: v.value for v in d.latch.derived}
+    # (24 V)^2 / 1.6 W = 360 ohm; 14 V / (360 ohm x (1 - 0.1)) = 14 / 324 = 0.0432099 A (hand)
+    assert got == {"coil.resistance": pytest.approx(360.0), "pull_in.current": pytest.approx(0.0432099, rel=1e-5)}
+    assert next(p for p in d.latch.pulses if p.name == "set").current_a == got["pull_in.current"]
+    # a latching coil has no drop-out, and the datasheet's operate time times a peak it does not have
+    for key, line in (("coil.drop_out_voltage", 'drop_out_voltage = "2 V"\n'), ("coil.operate_time", 'operate_time = "10 ms"\n')):
+        bad = tmp_path / "bad.toml"
+        bad.write_text(text.replace('stated_temp = "20 degC"', 'stated_temp = "20 degC"\n' + line, 1))
+        res = CliRunner().invoke(app, ["design", str(bad)])
+        assert res.exit_code == 2 and key in res.output and len(res.output.strip().splitlines()) == 1, res.output

@@ -45,6 +45,7 @@ from ..model.rl import decay_integrals, decay_time, rise_current, rise_integrals
 from ..model.topology import topology_of
 from .checks import SAFETY_CAUTION
 from .corners import tolerance_label
+from .datasheet import derived_values
 from .figures import worst
 from .peak import _ticks, requirement
 from .result import Check, Verdict
@@ -165,6 +166,8 @@ class LatchResult:
     tick_rate_hz: float
     armature_interval_s: float = 0.0
     cycle: LatchCycle | None = None
+    #: what the set coil's datasheet keys gave (:func:`coildrive.design.datasheet.derived_values`)
+    derived: list = dataclasses.field(default_factory=list)
 
 
 @dataclass(frozen=True)
@@ -495,6 +498,7 @@ def design_latch(drive: Drive) -> LatchDesign:
         topology=drive.switch.topology, pulses=pulses, interval_s=interval, interval_ticks=ticks, cycle=cycle,
         governed_by=governed, decay_interval_s=t_decay, thermal_interval_s=t_th,
         recharge_interval_s=t_rc if drive.supply.droops else 0.0, armature_interval_s=t_open,
+        derived=derived_values(drive),
         pulse_heat_j=heat,
         coil_rise_per_pulse_k=rise, hottest_coil_c=hottest, coil_limit_c=th.max_coil_temp,
         recharge_tolerance=drive.latch.recharge_tolerance, tick_rate_hz=rate)

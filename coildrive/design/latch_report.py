@@ -23,6 +23,8 @@ def latch_table(d: LatchDesign) -> Table:
     t.add_column("value", justify="right")
     t.add_column("where / how")
     t.add_row("circuit", "latch", escape(circuit))
+    for v in r.derived:
+        t.add_row(v.key, format_si(v.value, v.unit), escape(f"from the datasheet: {v.source}"))
     for p in r.pulses:
         if p.ticks is None:
             t.add_row(f"{p.name} pulse", "none", escape(p.not_reached or ""))
