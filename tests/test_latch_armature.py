@@ -8,6 +8,8 @@ from __future__ import annotations
 import json
 import math
 
+import numpy as np
+
 import pytest
 from scipy.integrate import solve_ivp
 
@@ -71,6 +73,7 @@ def _set_pulse_reference(drive, supply, coil_temp, rf, lf, t_long):
     zero.terminal, zero.direction = True, -1
     r4 = solve_ivp(lambda t, y: [-(r_off * y[0] + v_off) / lc, y[0] ** 2], (0, 10.0), [i_top, 0.0],
                    events=zero, **opts)
+    _set_pulse_reference.i_top = i_top   # the current at the pulse's end, A
     return t_seat, supply * q_on, r_coil * (s_on + r4.y[1, -1]), work
 
 
@@ -127,9 +130,21 @@ def test_json_table_and_refusals(bolt, tmp_path):
     assert all(math.isfinite(x) for x in (doc["latch"]["interval_s"], doc["latch"]["armature_interval_s"]))
     table = runner.invoke(app, ["design", str(BOLT)], env={"COLUMNS": "120"})
     assert "armature open" in table.output and "the armature's latest seat" in table.output
-    for args in (["simulate", str(BOLT), "--supply", "12", "--coil-temp", "20", "--csv", str(tmp_path / "s.csv")],):
-        res = runner.invoke(app, args)
-        assert res.exit_code == 2 and "armature" in res.output and not (tmp_path / "s.csv").exists()
+    # simulate: the set pulse follows the moving armature (scipy's current at its end), and
+    # where the armature does not seat within the pulse it says so in one line
+    res = runner.invoke(app, ["simulate", str(BOLT), "--supply", "10.8", "--coil-temp", "130", "--r-factor",
+                              "1.07", "--l-factor", "0.9", "--csv", str(tmp_path / "s.csv")])
+    assert res.exit_code == 0, res.output
+    data = np.genfromtxt(tmp_path / "s.csv", delimiter=",", names=True)
+    t_set = doc["latch"]["pulses"][0]["time_s"]
+    _set_pulse_reference(load_drive(BOLT), 10.8, 130.0, 1.07, 0.9, t_set)
+    k = int(np.searchsorted(data["time_s"], t_set))
+    assert data["current_a"][k] == pytest.approx(_set_pulse_reference.i_top, rel=1e-5), "vs solve_ivp"
+    res = runner.invoke(app, ["design", str(BOLT), "--plot", str(tmp_path / "b.png")])
+    assert res.exit_code == 0 and (tmp_path / "b.png").read_bytes()[:4] == b"\x89PNG"
+    res = runner.invoke(app, ["simulate", str(BOLT), "--supply", "3", "--coil-temp", "20", "--csv",
+                              str(tmp_path / "low.csv")])
+    assert res.exit_code == 2 and "not on the seat" in res.output and not (tmp_path / "low.csv").exists()
     # a spring too strong for the coil: the set pulse is not designed, no header is written
     text = BOLT.read_text().replace('spring_preload = "0.35 N" ', 'spring_preload = "3 N" ')
     strong = tmp_path / "strong.toml"

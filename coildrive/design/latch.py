@@ -562,7 +562,6 @@ def latch_waveforms(d: LatchDesign) -> dict:
     from ..model.latch_waveform import latch_actuation
 
     drive = d.drive
-    refuse_armature(drive, "plot")
     by = {p.name: p for p in d.latch.pulses}
     scale = 1.0 - drive.latch.recharge_tolerance if drive.supply.droops else 1.0
     rt, lt = drive.coil.resistance_tolerance, drive.coil.inductance_tolerance
