@@ -1,7 +1,8 @@
 """A latching coil with a moving armature (a catch holds it seated, the reset winding
 trips the catch): the set pulse's seat time and energies, and the armature's travel to
 the open stop after the reset pulse, against scipy's solve_ivp on the circuit and
-armature equations written afresh here; the CLI's refusals."""
+armature equations written afresh here; the CLI's refusals. The pulses' tolerance Monte
+Carlo (design --samples) never outside the corner envelope."""
 
 from __future__ import annotations
 
@@ -145,6 +146,8 @@ def test_json_table_and_refusals(bolt, tmp_path):
     res = runner.invoke(app, ["simulate", str(BOLT), "--supply", "3", "--coil-temp", "20", "--csv",
                               str(tmp_path / "low.csv")])
     assert res.exit_code == 2 and "not on the seat" in res.output and not (tmp_path / "low.csv").exists()
+    res = runner.invoke(app, ["emulate", str(BOLT)])
+    assert res.exit_code == 2 and "armature: a latching coil with a moving armature has no virtual device" in res.output
     # a spring too strong for the coil: the set pulse is not designed, no header is written
     text = BOLT.read_text().replace('spring_preload = "0.35 N" ', 'spring_preload = "3 N" ')
     strong = tmp_path / "strong.toml"
@@ -164,7 +167,8 @@ def test_json_table_and_refusals(bolt, tmp_path):
 
 
 # --------------------------------------------------------------------------- Monte Carlo
-@pytest.mark.parametrize("name", ["irrigation-valve-bridge-12v", "bistable-relay-reset-winding-24v"])
+@pytest.mark.parametrize("name", ["irrigation-valve-bridge-12v", "bistable-relay-reset-winding-24v",
+                                  "bolt-catch-reset-winding-12v"])
 def test_monte_carlo_never_outside_the_corner_envelope(name):
     import dataclasses
 
@@ -180,12 +184,16 @@ def test_monte_carlo_never_outside_the_corner_envelope(name):
         assert f["supply_j"]["max"] <= p.supply_j * (1 + 1e-12), p.name
         assert f["decay_time_s"]["max"] <= p.decay_time_s * (1 + 1e-12), p.name
         assert mc["failures"][f"{p.name}_not_reached"] == mc["failures"][f"{p.name}_below_margin"] == 0
-    # a pulse cut to half the worst time to its current: samples miss it, and are counted
-    half = [dataclasses.replace(p, shortest_s=p.worst_time_s / 2) if p.name == "set" else p
+    if "set_not_seated" in mc["failures"]:   # a moving armature: its seat time is the set's time
+        assert mc["failures"]["set_not_seated"] == 0
+    # a pulse cut to 3/4 of the worst time to its current: samples miss it, and are counted
+    half = [dataclasses.replace(p, shortest_s=p.worst_time_s * 0.75) if p.name == "set" else p
             for p in d.latch.pulses]
     cut = dataclasses.replace(d, latch=dataclasses.replace(d.latch, pulses=half))
     fails = latch_monte_carlo(cut, 500)["failures"]
-    assert 0 < fails["set_not_reached"] <= fails["set_below_margin"] < 500
+    assert fails["set_not_reached"] <= fails["set_below_margin"]
+    # with an armature the pulse still carries its current early: it is the seat that is missed
+    assert 0 < fails.get("set_not_seated", fails["set_not_reached"]) < 500
 
 
 def test_monte_carlo_cli(tmp_path):
@@ -201,5 +209,5 @@ def test_monte_carlo_cli(tmp_path):
     assert mc["samples"] == 200 and mc["seed"] == 3 and set(mc["pulses"]) == {"set", "reset"}
     table = runner.invoke(app, ["design", str(relay), "--samples", "200"], env={"COLUMNS": "200"})
     assert "Monte Carlo: 200 samples" in table.output and "reset below margin: 0" in table.output
-    res = runner.invoke(app, ["design", str(BOLT), "--samples", "10"])
-    assert res.exit_code == 2 and "armature" in res.output and "Monte Carlo" in res.output
+    res = runner.invoke(app, ["design", str(BOLT), "--samples", "100", "--json"])
+    assert res.exit_code == 0 and json.loads(res.stdout)["monte_carlo"]["failures"]["set_not_seated"] == 0

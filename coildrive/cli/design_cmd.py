@@ -54,10 +54,8 @@ def _run_latch(drive, as_json: bool, header: Optional[Path], plot: Optional[Path
                samples: int, seed: int) -> None:
     """``design`` of a latching coil: its table or JSON (with ``--samples``, its Monte
     Carlo), and its header."""
-    from ..design.latch import design_latch, refuse_armature
+    from ..design.latch import design_latch
 
-    if samples:
-        refuse_armature(drive, "Monte Carlo")
     result = design_latch(drive)
     if samples:
         from ..design.latch_montecarlo import with_monte_carlo

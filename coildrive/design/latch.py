@@ -251,7 +251,7 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     lp = pulse_loop(wd, pts)
     pin = p_arm = None
     if wd.armature is not None:   # the set pulse seats the armature (module docstring)
-        pin, p_arm = _seat_run(wd, lp, pts)
+        pin, p_arm = seat_run(wd, lp, pts)
         t_req = np.where(pin.status == 0, pin.seat_time, np.inf)
         t_force = rise_time(wd, lp, cm * current, open_inductance(wd, pts.l_factor))
     else:
@@ -278,8 +278,8 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     # energies of the longest pulse on a stiff bus (module docstring)
     v, r_on, ind = lp.v_on, lp.r_on, lp.inductance
     if pin is not None and ticks:   # the pulse outlasts every seat time (margin >= 1)
-        i_end = _after_seat(pin, p_arm, t_short, v, r_on)[0]
-        i_top, q_on, s_on = _after_seat(pin, p_arm, t_long, v, r_on)
+        i_end = after_seat(pin, p_arm, t_short, v, r_on)[0]
+        i_top, q_on, s_on = after_seat(pin, p_arm, t_long, v, r_on)
     else:
         i_end = rise_current_at(wd, lp, t_short)
         i_top, q_on, s_on = plain_pulse(lp, t_long)
@@ -378,17 +378,18 @@ def release_loop(drive: Drive, pts: Points):
                 sense_factor=pts.sense_factor)
 
 
-def _seat_run(drive: Drive, lp, pts: Points):
+def seat_run(drive: Drive, lp, pts: Points, peak_time=None):
     """The set pulse held on from rest at the open stop until the armature rests on the seat,
-    at every pulse corner (:func:`coildrive.model.armature_runs.pull_in`), and its params."""
+    at the points (:func:`coildrive.model.armature_runs.pull_in`; ``peak_time`` s asks for
+    the current then), and its params."""
     from ..model.armature import params_from_loop
     from ..model.armature_runs import pull_in
 
     p = params_from_loop(drive.armature, lp, pts.l_factor)
-    return pull_in(p), p
+    return pull_in(p, peak_time=peak_time), p
 
 
-def _after_seat(pin, p, t, v, r_on):
+def after_seat(pin, p, t, v, r_on):
     """Current A, ``int i dt`` A*s and ``int i^2 dt`` A^2*s ``t`` s after switch-on, ``t``
     past every seat time: the run up to the seat, then the seated RL rise."""
     dt = np.maximum(t - pin.seat_time, 0.0)

@@ -11,8 +11,10 @@ sample, with the designed pulse lengths, the same closed form as the corners giv
 pulse: the time to its current, the current at the end of the shortest real pulse, the
 supply's energy over the longest pulse (on a stiff bus, as the design's) and the time to
 zero after it. Failures count the samples whose shortest pulse does not reach its
-current, or does not carry ``current_margin`` x it. A moving armature is refused
-(:func:`coildrive.design.latch.refuse_armature`).
+current, or does not carry ``current_margin`` x it. With a moving armature the set
+pulse's time is the armature's seat time (the same batched run as the design's) and
+``set_not_seated`` counts the samples where it is not on the seat when the shortest
+pulse ends.
 
 SI units (s, A, J).
 """
@@ -25,8 +27,8 @@ import numpy as np
 
 from ..config import Drive
 from ..model.rl import decay_time
-from .latch import (LatchDesign, Points, plain_pulse, pulse_loop, refuse_armature, release_loop,
-                    rise_current_at, winding_drive)
+from .latch import (LatchDesign, Points, after_seat, plain_pulse, pulse_loop, release_loop,
+                    rise_current_at, seat_run, winding_drive)
 from .montecarlo import CHUNK, PERCENTILES, factors, summary
 from .supply import rise_time
 
@@ -35,12 +37,22 @@ FIGURES = ("time_to_current_s", "end_current_a", "supply_j", "decay_time_s")
 
 
 def _figures(wd: Drive, pts: Points, current: float, t_short: float, t_long: float) -> tuple:
-    """The :data:`FIGURES` of one pulse at the points."""
+    """The :data:`FIGURES` of one pulse at the points; with a moving armature (the set
+    pulse) the time is the seat time and the energy and the decay NaN where it is not
+    seated by the longest pulse's end."""
     lp = pulse_loop(wd, pts)
-    i_top, q_on, _ = plain_pulse(lp, t_long)
     rel = release_loop(wd, pts)
-    return (rise_time(wd, lp, current, lp.inductance), rise_current_at(wd, lp, t_short),
-            lp.v_on * q_on, decay_time(0.0, i_top, rel.r_off, rel.v_off, lp.inductance))
+    if wd.armature is None:
+        i_top, q_on, _ = plain_pulse(lp, t_long)
+        t_req, i_end = rise_time(wd, lp, current, lp.inductance), rise_current_at(wd, lp, t_short)
+    else:
+        pin, p = seat_run(wd, lp, pts, peak_time=t_short)
+        seated = (pin.status == 0) & (pin.seat_time <= t_long)
+        t_req = np.where(pin.status == 0, pin.seat_time, np.inf)
+        i_end = pin.peak_end_current
+        i_top, q_on, _ = after_seat(pin, p, t_long, lp.v_on, lp.r_on)
+        i_top, q_on = np.where(seated, i_top, np.nan), np.where(seated, q_on, np.nan)
+    return (t_req, i_end, lp.v_on * q_on, decay_time(0.0, i_top, rel.r_off, rel.v_off, lp.inductance))
 
 
 def with_monte_carlo(d: LatchDesign, samples: int, seed: int = 1) -> LatchDesign:
@@ -53,7 +65,6 @@ def latch_monte_carlo(d: LatchDesign, samples: int, seed: int = 1, chunk: int = 
     JSON-ready dict with ``samples``, ``seed``, ``percentiles``, ``distribution``, per
     pulse name each figure's percentiles, min and max, and ``failures``."""
     drive = d.drive
-    refuse_armature(drive, "Monte Carlo")
     rng = np.random.default_rng(seed)
     scale = 1.0 - drive.latch.recharge_tolerance if drive.supply.droops else 1.0
     supply = rng.uniform(drive.supply.min * scale, drive.supply.max, samples)
@@ -82,4 +93,6 @@ def latch_monte_carlo(d: LatchDesign, samples: int, seed: int = 1, chunk: int = 
         end = figs["end_current_a"]
         out["failures"][f"{p.name}_not_reached"] = int(np.sum(~(end >= p.current_a)))
         out["failures"][f"{p.name}_below_margin"] = int(np.sum(~(end >= p.current_margin * p.current_a)))
+        if wd.armature is not None:
+            out["failures"][f"{p.name}_not_seated"] = int(np.sum(~(figs["time_to_current_s"] <= p.shortest_s)))
     return out
