@@ -146,8 +146,8 @@ def test_json_table_and_refusals(bolt, tmp_path):
     res = runner.invoke(app, ["simulate", str(BOLT), "--supply", "3", "--coil-temp", "20", "--csv",
                               str(tmp_path / "low.csv")])
     assert res.exit_code == 2 and "not on the seat" in res.output and not (tmp_path / "low.csv").exists()
-    res = runner.invoke(app, ["emulate", str(BOLT)])
-    assert res.exit_code == 2 and "armature: a latching coil with a moving armature has no virtual device" in res.output
+    res = runner.invoke(app, ["emulate", str(BOLT), "--supply", "3"])
+    assert res.exit_code == 2 and "--supply: the armature is not on the seat" in res.output
     # a spring too strong for the coil: the set pulse is not designed, no header is written
     text = BOLT.read_text().replace('spring_preload = "0.35 N" ', 'spring_preload = "3 N" ')
     strong = tmp_path / "strong.toml"
@@ -211,3 +211,13 @@ def test_monte_carlo_cli(tmp_path):
     assert "Monte Carlo: 200 samples" in table.output and "reset below margin: 0" in table.output
     res = runner.invoke(app, ["design", str(BOLT), "--samples", "100", "--json"])
     assert res.exit_code == 0 and json.loads(res.stdout)["monte_carlo"]["failures"]["set_not_seated"] == 0
+
+
+def test_check_predicts_the_seated_end_current(bolt):
+    from coildrive.bench.latch_check import predict_pulse
+
+    drive, d = bolt
+    p = next(p for p in d.latch.pulses if p.name == "set")
+    got = predict_pulse(d, "set", 12.0, 20.0, 0.001, 0.001)["end_current_a"]
+    _set_pulse_reference(drive, 12.0, 20.0, 1.0, 1.0, p.time_s)
+    assert got == pytest.approx(_set_pulse_reference.i_top, rel=1e-5), "vs scipy solve_ivp (DOP853)"

@@ -145,9 +145,8 @@ def check_command(
     drv = load_drive(drive, board)
     if drv.latch is not None:
         from ..bench.latch_check import check_latch_capture
-        from ..design.latch import design_latch, refuse_armature
+        from ..design.latch import design_latch
 
-        refuse_armature(drv, "capture check")
         for option, given in (("--plot", plot is not None), ("--no-events", no_events)):
             if given:
                 raise InputError(option, "", "a latching coil's check takes its pulses from the ON/OFF "

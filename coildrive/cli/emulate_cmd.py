@@ -144,18 +144,20 @@ def _latch_device(path: Path, drv, options, firmware: Optional[Path], fault: Opt
     """The virtual device of a latching coil (:class:`~coildrive.bench.latch_device.LatchDevice`)."""
     from ..bench.device import OptionError
     from ..bench.latch_device import LatchDevice
-    from ..design.latch import design_latch, refuse_armature
+    from ..design.latch import design_latch
+    from ..model.latch_waveform import NotSeated
 
     for option, given in (("--firmware", firmware is not None), ("--fault", fault is not None)):
         if given:
             raise InputError(option, "", "a latching coil's virtual device runs the design's pulses "
                              "(no generated driver, no fault to put in): leave it out")
-    refuse_armature(drv, "virtual device")
     d = design_latch(drv)
     try:
         device = LatchDevice(d, options)
     except OptionError as err:
         raise InputError(_OPTION.get(err.name, err.name), "", err.message) from None
+    except NotSeated as err:   # a moving armature not on the seat at the device's point
+        raise InputError("--supply", "", str(err)) from None
     except ValueError as err:
         raise InputError(str(path), "thermal.max_coil_temp" if "interval" in str(err) else "reset.current" if "reset" in str(err) else "pull_in.current", str(err)) \
             from None

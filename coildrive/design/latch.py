@@ -35,7 +35,6 @@ import numpy as np
 
 from .. import __version__
 from ..config import Drive
-from ..errors import InputError
 from ..jsondoc import document_head, json_ready
 from ..model import latch as latch_model
 from ..model import supply as bus_model
@@ -436,16 +435,6 @@ def _opens(drive: Drive, pts: Points, t_trip, r: PulseResult) -> tuple[PulseResu
                     f"the catch trips at {r.current_a:.4g} A and the armature rests on the open stop "
                     f"{r.open_time_s * 1e3:.4g} ms after the reset pulse starts ({pts.label(k)})" if ok else
                     "the armature does not reach the open stop after the catch trips")
-
-
-def refuse_armature(drive: Drive, what: str) -> None:
-    """Refuse, in one line naming ``armature``, what is not built yet for a latching coil
-    with a moving armature (its set pulse's current follows the armature, which the
-    pulses' time series do not model)."""
-    if drive.armature is not None:
-        raise InputError(drive.source, "armature", f"a latching coil with a moving armature has no {what} "
-                         "yet (the set pulse's current follows the armature): expected [armature] left "
-                         "out, or use design for the pulses")
 
 
 def rise_current_at(drive: Drive, lp, t) -> np.ndarray:
