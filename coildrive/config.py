@@ -1767,16 +1767,19 @@ def _latch_drive(source, path, data, brd, coil, sheet, supply, ambient, thermal,
                  release, armature, duty, latch) -> Drive:
     """A latching coil's :class:`Drive`: what it is not designed with is refused in one line."""
     why = None
-    if armature is not None:
-        key, why = "armature", "a moving armature (the pulses are sized from the currents)"
-    elif sheet or coil.rated_voltage:
-        key, why = "coil", "the coil's datasheet voltages (give resistance and the currents)"
+    if coil.drop_out_voltage:
+        key, why = "coil.drop_out_voltage", ("a drop-out voltage: it stays where its last pulse put it "
+                                             "(give the reset pulse's current in [reset])")
+    elif coil.operate_time or coil.release_time:
+        key = "coil.operate_time" if coil.operate_time else "coil.release_time"
+        why = ("the datasheet's operate or release time: they time a monostable coil's peak and "
+               "release, which it does not have")
     elif coil.flux_current:
-        key, why = "coil.flux_current", "a flux-linkage curve"
-    elif duty is not None:
-        key, why = "duty", "an on/off cycle (the design gives the shortest interval instead)"
+        key, why = "coil.flux_current", ("a flux-linkage curve (its pulses would need the curve's "
+                                         "segments at every corner)")
     elif pull_in.compensate:
-        key, why = "pull_in.compensate", "a supply-compensated peak"
+        key, why = "pull_in.compensate", ("a supply-compensated peak (its header has no table of "
+                                          "pulse lengths against the measured supply)")
     elif thermal.resistance > 0 and not thermal.capacity > 0:
         key, why = "thermal.capacity", ("no heat capacity (the pulses' heat and the interval between "
                                         "them need it: give thermal.capacity or time_constant)")
@@ -1786,12 +1789,21 @@ def _latch_drive(source, path, data, brd, coil, sheet, supply, ambient, thermal,
                          release, armature, duty, latch)
 
 
-def _check_latch(source: str, switch: Switch, freewheel: Freewheel, latch: Latch) -> None:
+def _check_latch(source: str, switch: Switch, freewheel: Freewheel, latch: Latch,
+                 armature: Armature | None = None) -> None:
     """A latching coil's circuit: a full bridge reverses one coil (no [reset_coil]); one
-    switch per winding (low or high side) needs the reset winding."""
+    switch per winding (low or high side) needs the reset winding. A moving armature is
+    the mechanically latched one (a catch holds it seated, the reset winding trips the
+    catch): with a reset winding only, since reversing one coil unlatches only a
+    permanent-magnet armature, which the armature model does not have."""
     if switch.topology == "full_bridge" and latch.reset_coil is not None:
         raise InputError(source, "reset_coil", "a full bridge resets the one coil with the other "
                          "polarity: expected [reset_coil] left out (or a low- or high-side board)")
+    if armature is not None and switch.topology == "full_bridge":
+        raise InputError(source, "armature", "a latching coil reset by reversing the one coil is held "
+                         "by a permanent magnet, which the armature model does not have: expected "
+                         "[armature] left out, or a reset winding ([reset_coil]) on a low- or "
+                         "high-side board (a catch that the reset winding trips)")
     if freewheel.type == "clamp":
         raise InputError(source, "freewheel.type", "\"clamp\" with a latching coil: a clamp across the "
                          "switch draws from the bus after each pulse, which the pulse energies do not "
@@ -1829,6 +1841,6 @@ def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_
                          f"{freewheel.clamp_voltage:g} V is not above supply.max ({supply.max:g} V): "
                          "the clamp would conduct with the switch off")
     if latch is not None:
-        _check_latch(source, switch, freewheel, latch)
+        _check_latch(source, switch, freewheel, latch, armature)
     return Drive(path.stem, coil, supply, ambient, thermal, pull_in, hold, release, brd, switch,
                  freewheel, armature, source, duty, latch=latch)

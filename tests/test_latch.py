@@ -187,7 +187,7 @@ def test_a_two_winding_drive_without_its_reset_winding_is_refused(tmp_path):
     assert res.exit_code == 2 and "reset_coil" in res.stderr and "missing" in res.stderr
 
 
-@pytest.mark.parametrize("args", [["tune"], ["firmware-driver", "--out", "OUT"], ["design", "--samples", "10"],
+@pytest.mark.parametrize("args", [["tune"], ["firmware-driver", "--out", "OUT"],
                                   ["simulate", "--supply", "12", "--coil-temp", "20", "--csv", "w.csv", "--plot", "x.png"]])
 def test_commands_that_do_not_run_a_latch_say_so_in_one_line(tmp_path, args):
     args = [a.replace("OUT", str(tmp_path / "drv")).replace("x.png", str(tmp_path / "x.png"))

@@ -9,7 +9,9 @@ pulse; ``docs/protocol.md``) to OFF, then the decay to zero. Per pulse:
   current at the pulse's end, ``i(t_pulse)`` of the winding's RL rise (from a full
   capacitor on a drooping bus: :func:`coildrive.design.latch.rise_current_at`) with the
   design's R and L at the capture's supply and coil temperature (the operating point of
-  :func:`coildrive.bench.check.operating_point`), band ``Tolerances.pulse_current``
+  :func:`coildrive.bench.check.operating_point`; with a moving armature the set pulse's
+  current follows it onto the seat, :func:`coildrive.design.latch.seat_run`), band
+  ``Tolerances.pulse_current``
   widened to two ADC codes plus the rise of one sample period. A reading at the ADC's
   full scale is not a measurement (left out; the row is ``n/a`` when every one is);
 * ``<pulse>_time_to_zero``: from OFF to the first sample at or below the capture's zero
@@ -129,7 +131,10 @@ def predict_pulse(design, name: str, supply: float, coil_temp: float, zero_curre
     wd = winding_drive(design.drive, name == "reset")
     lp = loop(wd, np.array([supply]), np.array([coil_temp]), 1.0, 1.0)
     rel = loop(wd, np.array([supply]), np.array([coil_temp]), 1.0, 1.0, path="release")
-    i_end = float(rise_current_at(wd, lp, p.time_s)[0])
+    if wd.armature is None:
+        i_end = float(rise_current_at(wd, lp, p.time_s)[0])
+    else:
+        i_end = _seated_end(wd, lp, p.time_s, supply, coil_temp)
     ind = float(lp.inductance[0]) if np.ndim(lp.inductance) else float(lp.inductance)
     slope = max((float(lp.v_on[0]) - float(lp.r_on[0]) * i_end) / ind, 0.0)
     level = min(zero_current, i_end)
@@ -138,6 +143,20 @@ def predict_pulse(design, name: str, supply: float, coil_temp: float, zero_curre
     fall = (r_off * level + v_off) / ind
     return {"length_s": p.time_s, "end_current_a": i_end, "slope_a_s": slope, "time_to_zero_s": t_zero,
             "code_time_s": resolution / fall}
+
+
+def _seated_end(wd, lp, t_pulse: float, supply: float, coil_temp: float) -> float:
+    """The set pulse's current at its end, A, with a moving armature (the design's seat
+    run at the one point); one line where it is not on the seat by then."""
+    from ..design.latch import Points, seat_run
+
+    one = np.ones(1)
+    pin, _ = seat_run(wd, lp, Points(np.array([supply]), np.array([coil_temp]), one, one, one),
+                      peak_time=t_pulse)
+    if not (pin.status[0] == 0 and pin.seat_time[0] <= t_pulse):
+        raise InputError(wd.source, "armature", f"at {supply:g} V with the coil at {coil_temp:g} degC the "
+                         "armature is not on the seat when the set pulse ends: no end current to check")
+    return float(pin.peak_end_current[0])
 
 
 def check_latch_capture(capture: Capture, design, tolerances: Tolerances | None = None,

@@ -33,7 +33,7 @@ def _run_design(drive_path: Path, board: Optional[str], as_json: bool, header: O
         from ..codegen.header import check_prefix
         check_prefix(prefix)
     if drive.latch is not None:
-        _run_latch(drive, as_json, header, plot, prefix, samples)
+        _run_latch(drive, as_json, header, plot, prefix, samples, seed)
         return
     result = design(drive, samples=samples, seed=seed)
     if as_json:
@@ -51,22 +51,31 @@ def _run_design(drive_path: Path, board: Optional[str], as_json: bool, header: O
 
 
 def _run_latch(drive, as_json: bool, header: Optional[Path], plot: Optional[Path], prefix: str,
-               samples: int) -> None:
-    """``design`` of a latching coil: its table or JSON, and its header."""
+               samples: int, seed: int) -> None:
+    """``design`` of a latching coil: its table or JSON (with ``--samples``, its Monte
+    Carlo), and its header."""
     from ..design.latch import design_latch
 
-    if samples:
-        raise InputError("--samples", "", "a latching coil has no Monte Carlo yet, expected 0")
     result = design_latch(drive)
+    if samples:
+        from ..design.latch_montecarlo import with_monte_carlo
+        result = with_monte_carlo(result, samples, seed)
+    waves = None
+    if plot is not None:   # before any output: an armature that does not seat is one line
+        from ..design.latch import latch_waveforms
+        from ..model.latch_waveform import NotSeated
+        try:
+            waves = latch_waveforms(result)
+        except NotSeated as err:
+            raise InputError("--plot", "", str(err)) from None
     if as_json:
         typer.echo(json.dumps(result.to_dict(), indent=2))
     else:
         from ..design.latch_report import print_latch
         print_latch(result)
     if plot is not None:
-        from ..design.latch import latch_waveforms
         from ..design.latch_plot import plot_latch
-        write_atomic(plot, plot_latch(result, latch_waveforms(result)))
+        write_atomic(plot, plot_latch(result, waves))
         status(f"wrote plot {plot}")
     from ..codegen.latch_header import generate_latch_header
     _header_or_exit(result, header, lambda: generate_latch_header(result, prefix))
@@ -117,7 +126,8 @@ def _simulate_latch(drive, v: float, t: float, csv: Path, r_factor: float, l_fac
     """``simulate`` of a latching coil: the set pulse, then the reset pulse one shortest
     interval later (``--hold-time`` does not apply)."""
     from ..design.latch import design_latch, winding_drive
-    from ..model.latch_waveform import latch_actuation
+    from ..model.latch_waveform import NotSeated, latch_actuation
+
 
     if plot is not None:
         raise InputError("--plot", "", "a latching coil has no plot yet: plot the CSV")
@@ -131,8 +141,11 @@ def _simulate_latch(drive, v: float, t: float, csv: Path, r_factor: float, l_fac
         raise InputError(str(drive.source), "thermal.capacity", "one pulse heats the coil past "
                          "thermal.max_coil_temp (the coil_temperature check), so there is no interval "
                          "between pulses to simulate")
-    w = latch_actuation(drive, winding_drive(drive, True), v, t, by["set"].time_s, by["reset"].time_s,
-                        d.latch.interval_s, r_factor, l_factor, 40 * points)
+    try:
+        w = latch_actuation(drive, winding_drive(drive, True), v, t, by["set"].time_s, by["reset"].time_s,
+                            d.latch.interval_s, r_factor, l_factor, 40 * points)
+    except NotSeated as err:   # a moving armature that does not seat at this point
+        raise InputError("--supply", "", str(err)) from None
     write_atomic(csv, w.to_csv())
     status(f"wrote {csv}: {len(w.time)} samples, set pulse {by['set'].time_s * 1e3:.4g} ms (zero at "
            f"{w.events['set_zero'] * 1e3:.4g} ms), reset pulse at {w.events['reset'] * 1e3:.4g} ms for "

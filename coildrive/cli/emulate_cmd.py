@@ -152,6 +152,7 @@ def _latch_device(path: Path, drv, options, firmware: Optional[Path], fault: Opt
     from ..bench.device import OptionError
     from ..bench.latch_device import LatchDevice
     from ..design.latch import design_latch
+    from ..model.latch_waveform import NotSeated
 
     if fault is not None:
         raise InputError("--fault", "", "a latching coil's virtual device has no fault to put in: leave it out")
@@ -166,6 +167,8 @@ def _latch_device(path: Path, drv, options, firmware: Optional[Path], fault: Opt
             device = LatchDevice(d, options)
     except OptionError as err:
         raise InputError(_OPTION.get(err.name, err.name), "", err.message) from None
+    except NotSeated as err:   # a moving armature not on the seat at the device's point
+        raise InputError("--supply", "", str(err)) from None
     except ValueError as err:
         raise InputError(str(path), "thermal.max_coil_temp" if "interval" in str(err) else "reset.current" if "reset" in str(err) else "pull_in.current", str(err)) \
             from None

@@ -57,6 +57,15 @@ def _temp(t: float) -> str:
 def datasheet_result(drive: Drive, release: ReleaseResult) -> DatasheetResult:
     """The derived values with their sources, and the release estimate."""
     c = drive.coil
+    out = derived_values(drive)
+    estimate = release.time_s + c.release_time if c.release_time else None
+    return DatasheetResult(derived=out, operate_time_s=c.operate_time or None,
+                           release_time_s=c.release_time or None, release_estimate_s=estimate)
+
+
+def derived_values(drive: Drive) -> list[DerivedValue]:
+    """The values the design took from the datasheet keys, each with its arithmetic."""
+    c = drive.coil
     out: list[DerivedValue] = []
     if "coil.resistance" in c.derived:
         out.append(DerivedValue("coil.resistance", c.resistance, "ohm",
@@ -75,9 +84,7 @@ def datasheet_result(drive: Drive, release: ReleaseResult) -> DatasheetResult:
             out.append(DerivedValue("release.current", drive.release.current, "A",
                                     f"drop_out_voltage / highest R = {c.drop_out_voltage:g} V / "
                                     f"({at} x (1 + {tol:g}))"))
-    estimate = release.time_s + c.release_time if c.release_time else None
-    return DatasheetResult(derived=out, operate_time_s=c.operate_time or None,
-                           release_time_s=c.release_time or None, release_estimate_s=estimate)
+    return out
 
 
 def datasheet_checks(drive: Drive, pull_in: PullInResult, release: ReleaseResult,

@@ -39,11 +39,12 @@ from ..jsondoc import document_head, json_ready
 from ..model import latch as latch_model
 from ..model import supply as bus_model
 from ..model.bridge import pump_up
-from ..model.circuit import freewheel_element_energy, full_bridge, loop
+from ..model.circuit import freewheel_element_energy, full_bridge, loop, open_inductance
 from ..model.rl import decay_integrals, decay_time, rise_current, rise_integrals
 from ..model.topology import topology_of
 from .checks import SAFETY_CAUTION
 from .corners import tolerance_label
+from .datasheet import derived_values
 from .figures import worst
 from .peak import _ticks, requirement
 from .result import Check, Verdict
@@ -72,6 +73,13 @@ class PulseResult:
     ``recharge_time_s`` how long it then needs to be back within the recharge tolerance
     (the longest, at ``recharge_corner``; its supply is the source's). ``lowest_node_v``:
     a high-side switch's node at the pulse's end, below ground (``None`` for the others).
+
+    With ``[armature]`` (module docstring): the set pulse's ``armature_j`` is the energy the
+    moving armature takes (spring, load, damping and the seat impact; ``supply_j`` is then
+    the sum of the other five), ``seat_time_s`` the latest time from switch-on to the
+    armature at rest on the seat (at ``seat_corner``); the reset pulse's ``open_time_s`` the
+    latest time from its start to the armature at rest on the open stop (the catch trips
+    at ``current_a``, then spring and load open it). ``None`` / 0 without an armature.
     """
 
     name: str
@@ -104,6 +112,28 @@ class PulseResult:
     recharge_time_s: float
     recharge_corner: str
     lowest_node_v: float | None = None
+    armature_j: float = 0.0
+    seat_time_s: float | None = None
+    seat_corner: str = ""
+    open_time_s: float | None = None
+
+
+@dataclass(frozen=True)
+class LatchCycle:
+    """An on/off cycle of a latching coil (``[duty]``, ``design --json`` ``latch.cycle``): a
+    set pulse every ``period_s`` (``actuation_rate_hz``), the reset pulse ``on_time_s``
+    after it, the next set ``off_time_s`` after that. ``set_rise_k``/``reset_rise_k``: the
+    coil's rise above ``ambient.max`` just after each in the periodic steady state of the
+    pulses' copper heat (both windings one thermal body, as the interval's), and
+    ``hottest_coil_c`` the larger + ``ambient.max``."""
+
+    on_time_s: float
+    off_time_s: float
+    period_s: float
+    actuation_rate_hz: float
+    set_rise_k: float
+    reset_rise_k: float
+    hottest_coil_c: float
 
 
 @dataclass(frozen=True)
@@ -113,7 +143,8 @@ class LatchResult:
     pulse), ``interval_ticks`` in scheduler ticks, ``governed_by`` what sets it; its parts:
     ``decay_interval_s`` (the pulse and its decay to zero), ``thermal_interval_s`` (the
     coil's temperature; 0 without self-heating) and ``recharge_interval_s`` (the
-    capacitor; 0 on a stiff bus). ``pulse_heat_j``: the copper heat per pulse the
+    capacitor; 0 on a stiff bus) and ``armature_interval_s`` (a reset pulse's start to the
+    armature at rest on the open stop; 0 without ``[armature]``). ``pulse_heat_j``: the copper heat per pulse the
     thermal interval is for (the larger pulse's), ``coil_rise_per_pulse_k`` = that / the
     heat capacity, ``hottest_coil_c`` the coil just after a pulse when pulsing at the
     interval (from ``ambient.max``), ``coil_limit_c`` the limit."""
@@ -132,6 +163,10 @@ class LatchResult:
     coil_limit_c: float
     recharge_tolerance: float
     tick_rate_hz: float
+    armature_interval_s: float = 0.0
+    cycle: LatchCycle | None = None
+    #: what the set coil's datasheet keys gave (:func:`coildrive.design.datasheet.derived_values`)
+    derived: list = dataclasses.field(default_factory=list)
 
 
 @dataclass(frozen=True)
@@ -144,16 +179,19 @@ class LatchDesign(Verdict):
     cautions: list[str]
     version: str = __version__
     input_hash: str = ""
+    #: ``design --samples N``: :func:`coildrive.design.latch_montecarlo.with_monte_carlo`
+    monte_carlo: dict | None = None
 
     def to_dict(self) -> dict:
         """The ``design --json`` document of a latching coil."""
+        extra = {} if self.monte_carlo is None else {"monte_carlo": self.monte_carlo}
         return json_ready({**document_head(self.drive, self.version, self.input_hash), "ok": self.ok,
                            "latch": asdict(self.latch), "checks": [asdict(c) for c in self.checks],
-                           "cautions": list(self.cautions)})
+                           "cautions": list(self.cautions), **extra})
 
 
 @dataclass(frozen=True)
-class _Points:
+class Points:
     """The pulse corners: supply x coil temperature x resistance x inductance factors."""
 
     supply: np.ndarray
@@ -169,7 +207,7 @@ class _Points:
                 + ("" if sense == 1.0 else f", {tolerance_label('R_sense', sense)}"))
 
 
-def _points(drive: Drive, coil, scale: float) -> _Points:
+def _points(drive: Drive, coil, scale: float) -> Points:
     """Every corner of the pulses: the supply's ends (the lower one times ``scale``), the
     coil cold (``ambient.min``) and at its limit, and both ends of each tolerance (the
     coil's resistance and inductance, the sense resistor's)."""
@@ -179,14 +217,15 @@ def _points(drive: Drive, coil, scale: float) -> _Points:
                                   (drive.ambient.min, drive.thermal.max_coil_temp),
                                   sorted({1 - rt, 1 + rt}), sorted({1 - lt, 1 + lt}),
                                   sorted({1 - st, 1 + st})))
-    return _Points(*(np.array(a, float) for a in zip(*grid)))
+    return Points(*(np.array(a, float) for a in zip(*grid)))
 
 
 def winding_drive(drive: Drive, reset: bool) -> Drive:
     """The drive as the model sees one winding: the set coil, or the reset winding in its
     place (the same coil on a bridge)."""
     if reset and drive.latch.reset_coil is not None:
-        return dataclasses.replace(drive, coil=drive.latch.reset_coil)
+        # the reset winding trips the catch on its own magnet: the armature is not its load
+        return dataclasses.replace(drive, coil=drive.latch.reset_coil, armature=None)
     return drive
 
 
@@ -208,9 +247,15 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     droops = drive.supply.droops
     scale = 1.0 - lt.recharge_tolerance if droops else 1.0
     pts = _points(drive, coil, scale)
-    lp = loop(wd, pts.supply, pts.temp, pts.r_factor, pts.l_factor, sense_factor=pts.sense_factor)
-    t_req = rise_time(wd, lp, current, lp.inductance)
-    t_force = rise_time(wd, lp, cm * current, lp.inductance)
+    lp = pulse_loop(wd, pts)
+    pin = p_arm = None
+    if wd.armature is not None:   # the set pulse seats the armature (module docstring)
+        pin, p_arm = seat_run(wd, lp, pts)
+        t_req = np.where(pin.status == 0, pin.seat_time, np.inf)
+        t_force = rise_time(wd, lp, cm * current, open_inductance(wd, pts.l_factor))
+    else:
+        t_req = rise_time(wd, lp, current, lp.inductance)
+        t_force = rise_time(wd, lp, cm * current, lp.inductance)
     ticks, by_time, by_force = requirement(drive, t_req, t_force, margin, settle)
     rate = drive.board.tick.rate
     k_req = worst(t_req)
@@ -222,17 +267,22 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
         need = current if ticks is None else cm * current
         not_reached = (f"not reached: steady current {float(i_inf[k]):.4g} A < {need:.4g} A at "
                        f"{pts.label(k)}")
+        if pin is not None and ticks is None and float(i_inf[k]) > current:
+            not_reached = (f"not reached: the armature does not seat at {pts.label(k_req)} (see the "
+                           "set_armature_seats check)")
         ticks = None
     governed = "" if ticks is None else ("force margin" if (by_force or 0) > (by_time or 0) else "time margin")
     t_long = ticks / rate if ticks else 0.0
     t_short = (ticks - 1) / rate if ticks else 0.0
-    i_end = rise_current_at(wd, lp, t_short)
     # energies of the longest pulse on a stiff bus (module docstring)
     v, r_on, ind = lp.v_on, lp.r_on, lp.inductance
-    q_on, s_on = rise_integrals(t_long, 0.0, v, r_on, ind)
-    i_top = rise_current(t_long, 0.0, v, r_on, ind)
-    rel = loop(wd, pts.supply, pts.temp, pts.r_factor, pts.l_factor, path="release",
-               sense_factor=pts.sense_factor)
+    if pin is not None and ticks:   # the pulse outlasts every seat time (margin >= 1)
+        i_end = after_seat(pin, p_arm, t_short, v, r_on)[0]
+        i_top, q_on, s_on = after_seat(pin, p_arm, t_long, v, r_on)
+    else:
+        i_end = rise_current_at(wd, lp, t_short)
+        i_top, q_on, s_on = plain_pulse(lp, t_long)
+    rel = release_loop(wd, pts)
     t_zero = decay_time(0.0, i_top, rel.r_off, rel.v_off, ind)
     q_d, s_d = decay_integrals(t_zero, i_top, rel.r_off, rel.v_off, ind)
     sense = drive.board.sense
@@ -244,6 +294,8 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     sw_sense = n_sw * drive.switch.on_resistance * s_on + r_sense * (s_on + (s_d if sense_decay else 0.0))
     fw = freewheel_element_energy(wd, rel, q_d, s_d)
     returned = v * q_d if bridge else 0.0 * q_d
+    # the armature's share: what the supply gave that no element took (zero current at both ends)
+    moved = supply_e - copper - sw_sense - fw - returned if pin is not None and ticks else 0.0 * supply_e
     k_e = worst(supply_e)
     # the switch voltage at the end of the longest pulse, and a pumped bus
     v_sw = rel.switch_voltage(wd, i_top)
@@ -275,7 +327,7 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
                                          s.capacitance)
         k_r = worst(t_rc)
         droop, recharge = float(np.max(dv)), float(t_rc[k_r])
-        recharge_corner = _Points(full.v_on, pts.temp, pts.r_factor, pts.l_factor, pts.sense_factor).label(k_r)
+        recharge_corner = Points(full.v_on, pts.temp, pts.r_factor, pts.l_factor, pts.sense_factor).label(k_r)
     result = PulseResult(
         name=name, winding=winding, switches=switches, current_a=current, margin=margin,
         current_margin=cm, settle_time_s=settle, ticks=ticks, time_s=t_long, shortest_s=t_short,
@@ -286,8 +338,15 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
         freewheel_j=float(fw[k_e]), returned_j=float(returned[k_e]), energy_corner=pts.label(k_e),
         decay_time_s=float(np.max(t_zero)), peak_switch_voltage_v=v_sw_top,
         switch_voltage_corner=pts.label(k_v), droop_v=droop, recharge_time_s=recharge,
-        recharge_corner=recharge_corner, lowest_node_v=node)
+        recharge_corner=recharge_corner, lowest_node_v=node, armature_j=float(moved[k_e]),
+        seat_time_s=None if pin is None else float(t_req[k_req]),
+        seat_corner="" if pin is None else pts.label(k_req))
     limit = drive.switch.max_voltage * drive.switch.derating
+    if pin is not None:
+        checks.append(_seats_check(drive, pin, p_arm, pts, result))
+    elif reset and drive.armature is not None:
+        result, check = _opens(drive, pts, t_req, result)
+        checks.append(check)
     checks.insert(0, Check(f"{name}_pulse", ticks is not None,
                            (f"{name} pulse {ticks} ticks ({t_long * 1e3:.4g} ms, {governed}): the shortest "
                             f"({t_short * 1e3:.4g} ms) carries {result.end_current_a:.4g} A >= "
@@ -298,6 +357,84 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
                         f"({result.switch_voltage_corner}) vs {limit:.4g} V ({drive.switch.derating:.0%} "
                         f"of the {drive.switch.max_voltage:.4g} V rating)"))
     return result, checks
+
+
+def plain_pulse(lp, t):
+    """A pulse of ``t`` s from zero current on a stiff bus at the points of ``lp`` (the RL
+    rise): its current at the end A, ``int i dt`` A*s and ``int i^2 dt`` A^2*s."""
+    q, sq = rise_integrals(t, 0.0, lp.v_on, lp.r_on, lp.inductance)
+    return rise_current(t, 0.0, lp.v_on, lp.r_on, lp.inductance), q, sq
+
+
+def pulse_loop(drive: Drive, pts: Points):
+    """The winding's loop with its switch(es) on at the points."""
+    return loop(drive, pts.supply, pts.temp, pts.r_factor, pts.l_factor, sense_factor=pts.sense_factor)
+
+
+def release_loop(drive: Drive, pts: Points):
+    """The winding's decay path after a pulse at the points."""
+    return loop(drive, pts.supply, pts.temp, pts.r_factor, pts.l_factor, path="release",
+                sense_factor=pts.sense_factor)
+
+
+def seat_run(drive: Drive, lp, pts: Points, peak_time=None):
+    """The set pulse held on from rest at the open stop until the armature rests on the seat,
+    at the points (:func:`coildrive.model.armature_runs.pull_in`; ``peak_time`` s asks for
+    the current then), and its params."""
+    from ..model.armature import params_from_loop
+    from ..model.armature_runs import pull_in
+
+    p = params_from_loop(drive.armature, lp, pts.l_factor)
+    return pull_in(p, peak_time=peak_time), p
+
+
+def after_seat(pin, p, t, v, r_on):
+    """Current A, ``int i dt`` A*s and ``int i^2 dt`` A^2*s ``t`` s after switch-on, ``t``
+    past every seat time: the run up to the seat, then the seated RL rise."""
+    dt = np.maximum(t - pin.seat_time, 0.0)
+    q, sq = rise_integrals(dt, pin.seat_current, v, r_on, p.l_closed)
+    return (rise_current(dt, pin.seat_current, v, r_on, p.l_closed), pin.seat_charge + q,
+            pin.seat_square + sq)
+
+
+def _seats_check(drive: Drive, pin, p, pts: Points, r: PulseResult) -> Check:
+    """``set_armature_seats``: the armature rests on the seat at every corner before the
+    shortest set pulse ends (the catch then holds it)."""
+    bad = np.flatnonzero(pin.status != 0)
+    if bad.size == 0:
+        seat = (f"the armature rests on the seat {r.seat_time_s * 1e3:.4g} ms after switch-on at the "
+                f"latest ({r.seat_corner})")
+        return Check("set_armature_seats", r.ticks is not None,
+                     f"{seat}, within the shortest set pulse ({r.shortest_s * 1e3:.4g} ms)" if r.ticks else
+                     f"{seat}, but the set pulse has no length (see the set_pulse check)")
+    k = int(bad[0])
+    why = ("the coil never reaches the current that starts it off the open stop"
+           if pin.status[k] == 1 else f"it stalls {float(pin.stall_gap[k]) * 1e3:.3g} mm from the seat")
+    return Check("set_armature_seats", False,
+                 f"the armature does not seat at {bad.size} of {len(pin.status)} corners, e.g. "
+                 f"{pts.label(k)}: {why} -- a stronger coil, a higher supply or less spring and load")
+
+
+def _opens(drive: Drive, pts: Points, t_trip, r: PulseResult) -> tuple[PulseResult, Check]:
+    """The reset pulse trips the catch when its current reaches ``reset.current`` (at
+    ``t_trip`` s per corner); spring and load then carry the armature, the set coil
+    carrying no current, to the open stop (:func:`coildrive.model.armature_runs.release`
+    from zero current; config makes spring_preload + load_force > 0 and spring_rate >= 0,
+    so they push it open over the whole stroke). ``reset_armature_opens`` fails where it
+    does not arrive within the run's bound."""
+    from ..model.armature import params_from_loop
+    from ..model.armature_runs import release
+
+    p = params_from_loop(drive.armature, pulse_loop(drive, pts), pts.l_factor)
+    rb = release(p, 0.0)
+    t_open = np.where(rb.status == 0, t_trip + rb.open_time, np.inf)
+    k = worst(t_open)
+    r = dataclasses.replace(r, open_time_s=float(t_open[k]))
+    ok = bool(np.all(np.isfinite(t_open)))
+    return r, Check("reset_armature_opens", ok,
+                    f"the catch trips at {r.current_a:.4g} A and the armature rests on the open stop "
+                    f"{r.open_time_s * 1e3:.4g} ms after the reset pulse starts ({pts.label(k)})" if ok else
+                    "the armature does not reach the open stop after the catch trips")
 
 
 def rise_current_at(drive: Drive, lp, t) -> np.ndarray:
@@ -324,8 +461,9 @@ def design_latch(drive: Drive) -> LatchDesign:
         t_th = 0.0
     t_decay = max(p.time_s + p.decay_time_s for p in pulses)
     t_rc = max(p.time_s + p.recharge_time_s for p in pulses)
+    t_open = max(p.open_time_s or 0.0 for p in pulses)
     parts = {"the pulse and its decay to zero": t_decay, "the coil's temperature": t_th,
-             "the capacitor's recharge": t_rc}
+             "the capacitor's recharge": t_rc, "the armature's travel to the open stop": t_open}
     governed = max(parts, key=parts.get)
     interval = parts[governed]
     rate = drive.board.tick.rate
@@ -342,13 +480,47 @@ def design_latch(drive: Drive) -> LatchDesign:
                         f"one pulse's copper heat {heat:.4g} J raises the coil {rise:.3g} K, past the "
                         f"{limit:.4g} K between the hottest ambient and thermal.max_coil_temp -- a shorter "
                         "pulse, a higher supply or a coil with more heat capacity"))
+    cycle = None
+    if drive.duty is not None:
+        cycle, more = _cycle(drive, pulses, interval)
+        checks += more
     result = LatchResult(
-        topology=drive.switch.topology, pulses=pulses, interval_s=interval, interval_ticks=ticks,
+        topology=drive.switch.topology, pulses=pulses, interval_s=interval, interval_ticks=ticks, cycle=cycle,
         governed_by=governed, decay_interval_s=t_decay, thermal_interval_s=t_th,
-        recharge_interval_s=t_rc if drive.supply.droops else 0.0, pulse_heat_j=heat,
+        recharge_interval_s=t_rc if drive.supply.droops else 0.0, armature_interval_s=t_open,
+        derived=derived_values(drive),
+        pulse_heat_j=heat,
         coil_rise_per_pulse_k=rise, hottest_coil_c=hottest, coil_limit_c=th.max_coil_temp,
         recharge_tolerance=drive.latch.recharge_tolerance, tick_rate_hz=rate)
     return LatchDesign(drive, result, checks, _cautions(drive, result), input_hash=drive.input_hash())
+
+
+def _cycle(drive: Drive, pulses: list[PulseResult], interval: float) -> tuple[LatchCycle, list[Check]]:
+    """The on/off cycle (``[duty]``): set at its start, reset ``on_time`` later; the coil's
+    temperature just after each pulse (:func:`coildrive.model.latch.cycle_rises`, from
+    ``ambient.max``; none without self-heating) and both spacings against the shortest
+    interval."""
+    du, th = drive.duty, drive.thermal
+    by = {p.name: p for p in pulses}
+    if th.resistance > 0:
+        rs, rr = (float(x) for x in latch_model.cycle_rises(by["set"].copper_j, by["reset"].copper_j,
+                                                            du.on_time, du.off_time, th.capacity,
+                                                            th.time_constant))
+    else:
+        rs = rr = 0.0
+    hottest = drive.ambient.max + max(rs, rr)
+    cycle = LatchCycle(du.on_time, du.off_time, du.period, du.actuation_rate, rs, rr, hottest)
+    short = min(du.on_time, du.off_time)
+    checks = [Check("duty_interval", short >= interval,
+                    f"set to reset {du.on_time * 1e3:.4g} ms, reset to the next set {du.off_time * 1e3:.4g} ms "
+                    f"vs the shortest safe interval {interval * 1e3:.4g} ms" if math.isfinite(interval) else
+                    "no interval between pulses is safe (see the coil_temperature check)"),
+              Check("duty_coil_temperature", hottest <= th.max_coil_temp,
+                    f"at {du.actuation_rate:.4g} cycles/s the coil is at most {hottest:.4g} degC just after a "
+                    f"pulse (set +{rs:.3g} K, reset +{rr:.3g} K over a {drive.ambient.max:g} degC ambient; "
+                    f"limit {th.max_coil_temp:g} degC)" if th.resistance > 0 else
+                    "no self-heating (thermal.resistance = 0): the coil stays at the ambient")]
+    return cycle, checks
 
 
 def _cautions(drive: Drive, r: LatchResult) -> list[str]:

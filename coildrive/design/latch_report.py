@@ -7,6 +7,7 @@ from rich.markup import escape
 from rich.table import Table
 
 from ..console import print_cautions, print_verdict
+from ..units import format_si
 from .latch import LatchDesign
 from .report import checks_table
 
@@ -22,18 +23,26 @@ def latch_table(d: LatchDesign) -> Table:
     t.add_column("value", justify="right")
     t.add_column("where / how")
     t.add_row("circuit", "latch", escape(circuit))
+    for v in r.derived:
+        t.add_row(v.key, format_si(v.value, v.unit), escape(f"from the datasheet: {v.source}"))
     for p in r.pulses:
         if p.ticks is None:
             t.add_row(f"{p.name} pulse", "none", escape(p.not_reached or ""))
             continue
+        worst = f"worst time to {p.current_a:.4g} A" if p.seat_time_s is None else "the armature's latest seat"
         t.add_row(f"{p.name} pulse", f"{p.time_s * 1e3:.4g} ms",
-                  escape(f"{p.ticks} ticks ({p.governed_by}); {p.switches}; worst time to {p.current_a:.4g} A "
+                  escape(f"{p.ticks} ticks ({p.governed_by}); {p.switches}; {worst} "
                          f"{p.worst_time_s * 1e3:.4g} ms ({p.worst_corner}); the shortest pulse carries "
                          f"{p.end_current_a:.4g} A there"))
+        if p.open_time_s is not None:
+            t.add_row("  armature open", f"{p.open_time_s * 1e3:.4g} ms",
+                      escape("latest, from the reset pulse's start: the catch trips at "
+                             f"{p.current_a:.4g} A, spring and load carry the armature to the open stop"))
         t.add_row(f"  energy per {p.name} pulse", f"{p.supply_j * 1e3:.4g} mJ",
                   escape(f"from the supply ({p.energy_corner}): copper {p.copper_j * 1e3:.4g} mJ, switches + "
                          f"sense {p.switch_sense_j * 1e3:.4g} mJ, freewheel path {p.freewheel_j * 1e3:.4g} mJ, "
-                         f"back to the bus {p.returned_j * 1e3:.4g} mJ"))
+                         f"back to the bus {p.returned_j * 1e3:.4g} mJ"
+                         + (f", the armature {p.armature_j * 1e3:.4g} mJ" if p.armature_j else "")))
         t.add_row(f"  after the {p.name} pulse", f"{p.decay_time_s * 1e3:.4g} ms",
                   escape(f"to zero current; switches up to {p.peak_switch_voltage_v:.4g} V "
                          f"({p.switch_voltage_corner})"
@@ -42,10 +51,38 @@ def latch_table(d: LatchDesign) -> Table:
     t.add_row("shortest interval", f"{r.interval_s * 1e3:.4g} ms" if r.interval_ticks else "none",
               escape(f"{r.interval_ticks} ticks, start to start ({r.governed_by}); decay "
                      f"{r.decay_interval_s * 1e3:.4g} ms, coil temperature {r.thermal_interval_s * 1e3:.4g} ms, "
-                     f"recharge {r.recharge_interval_s * 1e3:.4g} ms"))
+                     f"recharge {r.recharge_interval_s * 1e3:.4g} ms"
+                     + (f", armature {r.armature_interval_s * 1e3:.4g} ms" if r.armature_interval_s else "")))
+    if r.cycle is not None:
+        c = r.cycle
+        t.add_row("on/off cycle", f"{c.actuation_rate_hz:.4g} /s",
+                  escape(f"set, reset {c.on_time_s * 1e3:.4g} ms later, the next set {c.off_time_s * 1e3:.4g} ms "
+                         f"after that; the coil at most {c.hottest_coil_c:.4g} degC just after a pulse "
+                         f"(set +{c.set_rise_k:.3g} K, reset +{c.reset_rise_k:.3g} K)"))
     t.add_row("coil temperature", f"{r.hottest_coil_c:.4g} degC",
               escape(f"just after a pulse when pulsing at the interval: {r.pulse_heat_j * 1e3:.4g} mJ "
                      f"(+{r.coil_rise_per_pulse_k:.3g} K) a pulse, limit {r.coil_limit_c:g} degC"))
+    return t
+
+
+def latch_monte_carlo_table(mc: dict) -> Table:
+    """rich table of the pulses' Monte Carlo (percentiles and max; min for the current)."""
+    levels = mc["percentiles"]
+    t = Table(title=f"Monte Carlo: {mc['samples']} samples ({mc['distribution']} tolerances, seed {mc['seed']})")
+    t.add_column("figure")
+    t.add_column("min", justify="right")
+    for q in levels:
+        t.add_column(f"p{q:g}", justify="right")
+    t.add_column("max", justify="right")
+    rows = {"time_to_current_s": ("time to its current", "s"),
+            "end_current_a": ("current, shortest pulse", "A"),
+            "supply_j": ("energy, longest pulse", "J"), "decay_time_s": ("then to zero", "s")}
+    for name, figs in mc["pulses"].items():
+        for key, (label, unit) in rows.items():
+            f = figs[key]
+            cells = ["-" if v is None else format_si(v, unit) for v in [f["min"], *f["values"], f["max"]]]
+            t.add_row(f"{name}: {label}", *cells)
+    t.caption = ", ".join(f"{k.replace('_', ' ')}: {v}" for k, v in mc["failures"].items())
     return t
 
 
@@ -54,5 +91,7 @@ def print_latch(d: LatchDesign, console: Console | None = None) -> None:
     console = console or Console()
     console.print(latch_table(d))
     console.print(checks_table(d))
+    if d.monte_carlo is not None:
+        console.print(latch_monte_carlo_table(d.monte_carlo))
     print_cautions(console, d.cautions)
     print_verdict(console, d.ok, "design ok", "design FAILED", [c.name for c in d.failed])

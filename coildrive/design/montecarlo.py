@@ -34,12 +34,23 @@ CHUNK = 16_384
 FIGURES = ("pull_in_time_s", "hold_mean_current_a", "hold_ripple_a", "coil_temp_c", "release_time_s")
 
 
-def _factors(rng: np.random.Generator, tol: float, n: int, kind: str) -> np.ndarray:
+def factors(rng: np.random.Generator, tol: float, n: int, kind: str) -> np.ndarray:
+    """Tolerance factors around 1 (uniform, or normal with the tolerance as 3 sigma)."""
     if tol == 0:
         return np.ones(n)
     if kind == "normal":
         return 1.0 + np.clip(rng.normal(0.0, tol / 3.0, n), -tol, tol)
     return 1.0 + rng.uniform(-tol, tol, n)
+
+
+def summary(values: np.ndarray) -> dict:
+    """A figure's :data:`PERCENTILES` over its finite samples, and its min and max
+    (``None`` where no sample is finite)."""
+    finite = values[np.isfinite(values)]
+    if finite.size == 0:
+        return {"values": [None] * len(PERCENTILES), "min": None, "max": None}
+    return {"values": [float(v) for v in np.percentile(finite, PERCENTILES)],
+            "min": float(finite.min()), "max": float(finite.max())}
 
 
 def _figures(drive: Drive, res, peak_time) -> tuple:
@@ -64,12 +75,12 @@ def monte_carlo(drive: Drive, duty: float, frequency: float, peak_time: float, s
     c = drive.coil
     supply = rng.uniform(drive.supply.min, drive.supply.max, samples)
     ambient = rng.uniform(drive.ambient.min, drive.ambient.max, samples)
-    rf = _factors(rng, c.resistance_tolerance, samples, c.tolerance_distribution)
-    lf = _factors(rng, c.inductance_tolerance, samples, c.tolerance_distribution)
+    rf = factors(rng, c.resistance_tolerance, samples, c.tolerance_distribution)
+    lf = factors(rng, c.inductance_tolerance, samples, c.tolerance_distribution)
     s_ = drive.supply
     if s_.boosted:   # each sample's own boost (drawn after the rest: other drives' streams stay)
-        bf = _factors(rng, s_.boost_tolerance, samples, c.tolerance_distribution)
-        cf = _factors(rng, s_.boost_capacitance_tolerance, samples, c.tolerance_distribution)
+        bf = factors(rng, s_.boost_tolerance, samples, c.tolerance_distribution)
+        cf = factors(rng, s_.boost_capacitance_tolerance, samples, c.tolerance_distribution)
 
     def boosted(res, sl=slice(None)):
         """``res`` with each sample's pull-in from its own boost (unchanged without one)."""
@@ -102,12 +113,7 @@ def monte_carlo(drive: Drive, duty: float, frequency: float, peak_time: float, s
     out: dict = {"samples": samples, "seed": seed, "percentiles": list(PERCENTILES),
                  "distribution": c.tolerance_distribution}
     for name, values in figures.items():
-        finite = values[np.isfinite(values)]
-        if finite.size == 0:
-            out[name] = {"values": [None] * len(PERCENTILES), "min": None, "max": None}
-            continue
-        out[name] = {"values": [float(v) for v in np.percentile(finite, PERCENTILES)],
-                     "min": float(finite.min()), "max": float(finite.max())}
+        out[name] = summary(values)
     out["failures"] = {
         "pull_in_late": int(np.sum(~(figures["pull_in_time_s"] <= peak_of(supply_all)))),
         "hold_short": int(np.sum(~(figures["hold_mean_current_a"] >= drive.hold.current))),

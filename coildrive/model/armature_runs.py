@@ -41,7 +41,8 @@ class PullInBatch:
     bus too, and the hump is its highest from the motion's start on), every other
     current the magnetising current's. ``seat_time``: at rest on the seat (after
     any bounces). ``peak_end_current``: the current at the asked time (end of the peak
-    phase). ``steps``: integrator steps taken.
+    phase). ``steps``: integrator steps taken. ``seat_charge``/``seat_square``: ``int i dt``
+    A*s and ``int i^2 dt`` A^2*s from switch-on to ``seat_time`` (NaN where not seated).
 
     On a drooping bus (``p.droops``; else ``None``): ``lowest_bus`` V and
     ``lowest_bus_time`` s, the capacitor's lowest over ``[0, peak_time]`` (over the run
@@ -68,6 +69,8 @@ class PullInBatch:
     lowest_bus: np.ndarray | None = None
     lowest_bus_time: np.ndarray | None = None
     seat_bus: np.ndarray | None = None
+    seat_charge: np.ndarray | None = None
+    seat_square: np.ndarray | None = None
 
     @property
     def dip_depth(self) -> np.ndarray:
@@ -144,6 +147,7 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     impact_time, impact_speed, dip_current = nan.copy(), nan.copy(), nan.copy()
     seat_time = np.full(n, np.inf)
     seat_current = nan.copy()
+    seat_q, seat_s = nan.copy(), nan.copy()
     stall_gap = np.where(moves, np.nan, p.stroke)
     bounces = np.zeros(n, int)
     # the running highest current (with an eddy term on a drooping bus the terminal
@@ -195,6 +199,7 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
             seat_bus = np.where(holds, y[5], seat_bus)
         if curved:
             seat_y = np.where(holds, y, seat_y)
+        seat_q, seat_s = np.where(holds, y[3], seat_q), np.where(holds, y[4], seat_s)
         active = active & ~holds
         # At the open stop with the force still too weak: rest there until the current
         # (closed form, open inductance) reaches the start current again.
@@ -280,7 +285,8 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
                        seat_current=seat_current, bounces=bounces, stall_gap=stall_gap,
                        peak_end_current=peak_end, bound=bound, steps=steps,
                        lowest_bus=None if low is None else low[0],
-                       lowest_bus_time=None if low is None else low[1], seat_bus=seat_bus)
+                       lowest_bus_time=None if low is None else low[1], seat_bus=seat_bus,
+                       seat_charge=seat_q, seat_square=seat_s)
 
 
 def _held_rise(p: ArmatureParams, i_inf, stiff, rtol, want, query_y, low, low_until):

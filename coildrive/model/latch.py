@@ -21,6 +21,16 @@ just after a pulse is ``theta = (E / C) / (1 - e^(-T / tau))`` above the ambient
 at or below ``theta_max`` is ``T = -tau ln(1 - E / (C theta_max))`` (none when ``E / C >=
 theta_max``: one pulse is already too hot).
 
+An on/off cycle (``[duty]``) is a set pulse every ``P = on + off`` s and a reset pulse
+``on`` s after each: copper heats ``E_s`` and ``E_r``. Just after each pulse in the
+periodic steady state (the same impulses)::
+
+    theta_s = (E_s / C + e^(-off / tau) E_r / C) / (1 - e^(-P / tau))
+    theta_r = (E_r / C + e^(-on / tau) E_s / C) / (1 - e^(-P / tau))
+
+(with ``E_s = E_r`` and ``on = off = T`` both are ``(E / C) / (1 - e^(-T / tau))``, the
+train above).
+
 A pulse from a capacitor behind a source resistance ``R_s`` leaves it ``dV`` below the
 supply; with the coil off the bus it recharges as ``V_s - (V_s - V_c) e^(-t / R_s C)``.
 Pulses designed from a bus ``k V_s`` (``k = 1 - recharge_tolerance``) may start once it is
@@ -52,6 +62,15 @@ def shortest_interval(energy, capacity, time_constant, rise_limit):
     with np.errstate(divide="ignore", invalid="ignore"):
         t = -tau * np.log1p(-ratio)
     return np.where(ratio >= 1.0, np.inf, np.where(ratio <= 0.0, 0.0, t))
+
+
+def cycle_rises(set_energy, reset_energy, on_time, off_time, capacity, time_constant):
+    """Coil temperature rises (K) just after the set and just after the reset pulse in
+    the periodic steady state of an on/off cycle (module docstring)."""
+    es, er, on, off, c, tau = (np.asarray(x, float) for x in (set_energy, reset_energy, on_time,
+                                                               off_time, capacity, time_constant))
+    denom = -np.expm1(-(on + off) / tau)
+    return ((es + np.exp(-off / tau) * er) / c / denom, (er + np.exp(-on / tau) * es) / c / denom)
 
 
 def recharge_time(droop, supply, tolerance, source_resistance, capacitance):

@@ -3,7 +3,9 @@
 The set pulse switches on at t = 0 for ``set_time`` s and its current decays to zero
 through the release path; the reset pulse starts ``interval`` s after the set pulse and
 does the same (closed-form segments of :mod:`coildrive.model.rl`; on a drooping bus the
-rise of :mod:`coildrive.model.supply`, from a full capacitor). Between the pulses one
+rise of :mod:`coildrive.model.supply`, from a full capacitor). With a moving armature
+the set pulse follows it onto the seat (:mod:`coildrive.model.armature_sim`), and its
+decay is the seated coil's: the catch holds the armature. Between the pulses one
 sample marks the idle coil.
 
 A full bridge (:mod:`coildrive.model.bridge`): the current is signed (+ set through Q1 +
@@ -30,6 +32,10 @@ from . import supply as bus_model
 from .circuit import full_bridge, loop
 from .rl import decay_current, decay_time, rise_current
 from .topology import coil_voltage
+
+
+class NotSeated(ValueError):
+    """The set pulse ends before the moving armature rests on the seat."""
 
 
 @dataclass(frozen=True)
@@ -61,7 +67,10 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
     rel = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
     v, r_on, ind = float(lp.v_on), float(lp.r_on), float(lp.inductance)
     t_on = np.linspace(0.0, t_pulse, points + 1)
-    if drive.supply.droops:
+    if drive.armature is not None:   # the set pulse moves the armature; config: no droop then
+        t_on, i_on = _seating(drive, lp, l_factor, t_pulse, points, supply, coil_temp)
+        bus = np.full(t_on.shape, v)
+    elif drive.supply.droops:
         s = drive.supply
         i_on, bus = bus_model.state(t_on, bus_model.bus(v, s.source_resistance, s.capacitance, r_on, ind))
     else:
@@ -75,6 +84,22 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
     i = np.concatenate([i_on, i_d])
     on = np.concatenate([np.ones(t_on.size), np.zeros(t_d.size)])
     return t, i, on, np.concatenate([bus, np.full(t_d.size, supply)]), t_pulse + tz, rel
+
+
+def _seating(drive: Drive, lp, l_factor: float, t_pulse: float, points: int, supply: float,
+             coil_temp: float):
+    """The set pulse with a moving armature (:func:`coildrive.model.armature_sim.simulate`
+    from rest at the open stop): ``(t, i)``. The armature must rest on the seat when the
+    pulse ends (the catch then holds it, and the decay is the seated coil's);
+    :class:`NotSeated` otherwise."""
+    from .armature import params_from_loop
+    from .armature_sim import simulate
+
+    tr = simulate(params_from_loop(drive.armature, lp, l_factor), [(t_pulse, True, points)], points=points)
+    if tr.state != "seated":
+        raise NotSeated(f"the armature is not on the seat when the set pulse ends at {supply:g} V, coil "
+                         f"{coil_temp:g} degC, so the catch would not hold it")
+    return tr.time, tr.current
 
 
 def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float,

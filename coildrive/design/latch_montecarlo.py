@@ -1,0 +1,98 @@
+"""Tolerance Monte Carlo of a latching coil's designed pulses (``design --samples N``).
+
+Each sample draws the supply uniformly over the range the pulses are designed for (the
+lowest supply less ``hold.recharge_tolerance`` on a drooping bus, up to the highest), the
+coil's temperature uniformly between ``ambient.min`` and ``thermal.max_coil_temp`` (the
+limit the shortest interval keeps it at or below), each winding's resistance and
+inductance within their tolerances (uniform, or normal with the tolerance as 3 sigma,
+as the peak-and-hold Monte Carlo of :mod:`coildrive.design.montecarlo`) and the sense
+resistor uniformly within its tolerance: the same box as the pulses' corners. At each
+sample, with the designed pulse lengths, the same closed form as the corners gives per
+pulse: the time to its current, the current at the end of the shortest real pulse, the
+supply's energy over the longest pulse (on a stiff bus, as the design's) and the time to
+zero after it. Failures count the samples whose shortest pulse does not reach its
+current, or does not carry ``current_margin`` x it. With a moving armature the set
+pulse's time is the armature's seat time (the same batched run as the design's) and
+``set_not_seated`` counts the samples where it is not on the seat when the shortest
+pulse ends.
+
+SI units (s, A, J).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+
+from ..config import Drive
+from ..model.rl import decay_time
+from .latch import (LatchDesign, Points, after_seat, plain_pulse, pulse_loop, release_loop,
+                    rise_current_at, seat_run, winding_drive)
+from .montecarlo import CHUNK, PERCENTILES, factors, summary
+from .supply import rise_time
+
+#: The figures kept per pulse and sample.
+FIGURES = ("time_to_current_s", "end_current_a", "supply_j", "decay_time_s")
+
+
+def _figures(wd: Drive, pts: Points, current: float, t_short: float, t_long: float) -> tuple:
+    """The :data:`FIGURES` of one pulse at the points; with a moving armature (the set
+    pulse) the time is the seat time and the energy and the decay NaN where it is not
+    seated by the longest pulse's end."""
+    lp = pulse_loop(wd, pts)
+    rel = release_loop(wd, pts)
+    if wd.armature is None:
+        i_top, q_on, _ = plain_pulse(lp, t_long)
+        t_req, i_end = rise_time(wd, lp, current, lp.inductance), rise_current_at(wd, lp, t_short)
+    else:
+        pin, p = seat_run(wd, lp, pts, peak_time=t_short)
+        seated = (pin.status == 0) & (pin.seat_time <= t_long)
+        t_req = np.where(pin.status == 0, pin.seat_time, np.inf)
+        i_end = pin.peak_end_current
+        i_top, q_on, _ = after_seat(pin, p, t_long, lp.v_on, lp.r_on)
+        i_top, q_on = np.where(seated, i_top, np.nan), np.where(seated, q_on, np.nan)
+    return (t_req, i_end, lp.v_on * q_on, decay_time(0.0, i_top, rel.r_off, rel.v_off, lp.inductance))
+
+
+def with_monte_carlo(d: LatchDesign, samples: int, seed: int = 1) -> LatchDesign:
+    """``d`` with its Monte Carlo of ``samples`` samples (``monte_carlo``)."""
+    return dataclasses.replace(d, monte_carlo=latch_monte_carlo(d, samples, seed))
+
+
+def latch_monte_carlo(d: LatchDesign, samples: int, seed: int = 1, chunk: int = CHUNK) -> dict:
+    """``samples`` random operating points of the designed pulses (module docstring): a
+    JSON-ready dict with ``samples``, ``seed``, ``percentiles``, ``distribution``, per
+    pulse name each figure's percentiles, min and max, and ``failures``."""
+    drive = d.drive
+    rng = np.random.default_rng(seed)
+    scale = 1.0 - drive.latch.recharge_tolerance if drive.supply.droops else 1.0
+    supply = rng.uniform(drive.supply.min * scale, drive.supply.max, samples)
+    temp = rng.uniform(drive.ambient.min, drive.thermal.max_coil_temp, samples)
+    sense = factors(rng, drive.board.sense.resistance_tolerance, samples, "uniform")
+    out: dict = {"samples": samples, "seed": seed, "percentiles": list(PERCENTILES),
+                 "distribution": drive.coil.tolerance_distribution, "pulses": {}, "failures": {}}
+    tol = {}
+    for p in d.latch.pulses:
+        coil = winding_drive(drive, p.name == "reset").coil
+        if p.winding not in tol:   # a bridge's reset drives the same coil: the same draws
+            tol[p.winding] = (factors(rng, coil.resistance_tolerance, samples, coil.tolerance_distribution),
+                         factors(rng, coil.inductance_tolerance, samples, coil.tolerance_distribution))
+    for p in d.latch.pulses:
+        wd = winding_drive(drive, p.name == "reset")
+        rf, lf = tol[p.winding]
+        values = tuple(np.full(samples, np.nan) for _ in FIGURES)
+        if p.ticks is not None:
+            for start in range(0, samples, chunk):
+                sl = slice(start, min(start + chunk, samples))
+                pts = Points(supply[sl], temp[sl], rf[sl], lf[sl], sense[sl])
+                for arr, got in zip(values, _figures(wd, pts, p.current_a, p.shortest_s, p.time_s)):
+                    arr[sl] = got
+        figs = dict(zip(FIGURES, values))
+        out["pulses"][p.name] = {name: summary(v) for name, v in figs.items()}
+        end = figs["end_current_a"]
+        out["failures"][f"{p.name}_not_reached"] = int(np.sum(~(end >= p.current_a)))
+        out["failures"][f"{p.name}_below_margin"] = int(np.sum(~(end >= p.current_margin * p.current_a)))
+        if wd.armature is not None:
+            out["failures"][f"{p.name}_not_seated"] = int(np.sum(~(figs["time_to_current_s"] <= p.shortest_s)))
+    return out
