@@ -187,7 +187,7 @@ def test_a_two_winding_drive_without_its_reset_winding_is_refused(tmp_path):
     assert res.exit_code == 2 and "reset_coil" in res.stderr and "missing" in res.stderr
 
 
-@pytest.mark.parametrize("args", [["tune"], ["firmware-driver", "--out", "OUT"],
+@pytest.mark.parametrize("args", [["tune"],
                                   ["simulate", "--supply", "12", "--coil-temp", "20", "--csv", "w.csv", "--plot", "x.png"]])
 def test_commands_that_do_not_run_a_latch_say_so_in_one_line(tmp_path, args):
     args = [a.replace("OUT", str(tmp_path / "drv")).replace("x.png", str(tmp_path / "x.png"))
@@ -245,11 +245,12 @@ def test_a_pulse_too_hot_for_the_coil_fails_and_writes_no_header(tmp_path):
 
 @pytest.mark.parametrize("path", [BRIDGE, RELAY], ids=["bridge", "reset-winding"])
 def test_the_bench_commands_refuse_a_latch_in_one_line(tmp_path, path):
-    """tune and firmware-driver run a peak-and-hold drive: a latching coil is refused with
-    one line naming hold.mode (exit 2), never a traceback (emulate and check run its
-    pulses: tests/test_latch_bench.py)."""
+    """tune steps a peak-and-hold drive's PWM: a latching coil is refused with one line
+    naming hold.mode (exit 2), never a traceback (emulate and check run its pulses:
+    tests/test_latch_bench.py; firmware-driver writes its pulse driver:
+    tests/test_latch_driver.py)."""
     assert load_drive(path).latch is not None, "the drive keeps its [reset] (config's Drive fields)"
-    for args in (["tune", str(path)], ["firmware-driver", str(path), "--out", str(tmp_path / "fw")]):
+    for args in (["tune", str(path)],):
         res = CliRunner().invoke(app, args)
         assert res.exit_code == 2 and "hold.mode" in res.stderr, (args, res.exit_code, res.stderr)
         assert len(res.stderr.strip().splitlines()) == 1 and "Traceback" not in res.stderr, args
