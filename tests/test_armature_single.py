@@ -27,7 +27,7 @@ import numpy as np
 import pytest
 
 from coildrive.config import load_drive
-from coildrive.model import armature, armature_flight
+from coildrive.model import armature, armature_flight, flux
 from coildrive.model.armature import SEATED, ArmatureParams
 from coildrive.model.armature_flight import OnePoint, fly, fly_point
 from coildrive.model.armature_runs import pull_in, release
@@ -250,13 +250,15 @@ def test_one_point_with_curves_equals_the_batch():
 def test_dropout_with_curves_equals_the_numpy_batch(monkeypatch, tmp_path):
     """A hold too weak to keep the armature seated, on the saturating latch's curves: the
     armature flies every PWM period through the one-point path, and the whole actuation
-    equals the numpy batch of one point's to 1e-9 of each signal's largest value."""
+    equals the numpy batch of one point's (the curves' law in numpy too) to 1e-9 of each
+    signal's largest value."""
     from test_armature_curves import curve_drive
 
     drive = load_drive(curve_drive(tmp_path))
     args = (drive, 12.0, 25.0, 0.0288, 0.45, 25e3, 0.012)
     new = armature_actuation(*args)
     monkeypatch.setattr(armature_flight, "SINGLE_POINT_SCALAR", False)
+    monkeypatch.setattr(flux, "ONE_POINT_FLOATS", False)   # the curves' law in numpy too
     old = armature_actuation(*args)
     assert new.time.size == old.time.size and new.events.keys() == old.events.keys()
     in_hold = (new.time > 0.0288) & (new.time < new.events["off"])

@@ -38,7 +38,8 @@ from .timer import TimerSetting
 
 #: Entries in the supply-compensated duty table (and the peak table).
 TABLE_ENTRIES = 16
-#: Counts above an entry that :func:`_monotone` tries in one batch before bisecting.
+#: Counts above an entry that :func:`_monotone` tries in one batch before bisecting (0:
+#: the serial search, one entry and one count at a time, kept for the benchmark).
 LOOK_AHEAD = 16
 #: Rounds of the duty <-> hottest-coil iteration before it is taken as settled.
 MAX_ROUNDS = 60
@@ -222,7 +223,10 @@ def _monotone(drive: Drive, tol: Tolerances, hot: np.ndarray, design_v: np.ndarr
         """Per row of ``here``: does some coil carry less than it does at ``below``?"""
         return np.any(here < below * (1.0 - 1e-12), axis=-1)
 
-    start = means(np.arange(len(out)), out)   # every entry at its own count, one batch
+    if LOOK_AHEAD:   # every entry at its own count, one batch
+        start = means(np.arange(len(out)), out)
+    else:            # the serial search (benchmarks/bench_tune.py's side-by-side)
+        start = np.array([means([i], [out[i]])[0] for i in range(len(out))])
     below = start[0]
     for i in range(1, len(out)):
         here = start[i]

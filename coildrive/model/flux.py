@@ -41,6 +41,9 @@ import numpy as np
 
 from .roots import falling_root
 
+#: One point's inversion (and :mod:`gap_curves`' state of one point) in Python floats, the
+#: same steps as the arrays' (False: numpy's, for benchmarks/bench_armature.py's side by side).
+ONE_POINT_FLOATS = True
 #: Gauss-Legendre nodes per table interval.
 _NODES = 8
 _GL_X, _GL_W = np.polynomial.legendre.leggauss(_NODES)
@@ -138,7 +141,7 @@ class FluxCurve:
         leaving it bisects), to 1e-14 of the piece's length or the flux to rounding; the
         extension above the table is linear and exact."""
         psi = np.asarray(psi, float)
-        if psi.size == 1:
+        if psi.size == 1 and ONE_POINT_FLOATS:
             # one point (an armature's flight takes tens of thousands of these): the same
             # steps in Python floats, free of numpy's per-call cost; IEEE arithmetic in the
             # same order gives the same bits (tests/test_flux_coil.py compares them)

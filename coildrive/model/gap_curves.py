@@ -44,6 +44,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from . import flux
 from .flux import FluxCoil, FluxCurve
 
 
@@ -116,7 +117,8 @@ class GapCurves:
     def state(self, lam, x):
         """Everything the equations of motion need at ``(lam, x)`` in one pass:
         ``(i, di/dlam, di/dx, F_close, dF_close/dlam)`` (A, A/Wb, A/m, N, N/Wb)."""
-        if np.size(lam) == 1 and np.size(x) == 1 and self.scale.size == 1 and self.stroke.size == 1:
+        if (flux.ONE_POINT_FLOATS and np.size(lam) == 1 and np.size(x) == 1
+                and self.scale.size == 1 and self.stroke.size == 1):
             one = self._state_one(float(np.ravel(lam)[0]), float(np.ravel(x)[0]))
             if one is not None:   # one point (an armature's flight): Python floats
                 shape = np.broadcast_shapes(np.shape(lam), np.shape(x), self.scale.shape)
