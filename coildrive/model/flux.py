@@ -173,7 +173,6 @@ class FluxCurve:
                 break
         return np.where(skip, np.nan, self.base[k] + d)
 
-
     @functools.cached_property
     def _lists(self):
         """The table as Python floats, for :meth:`_current_of_one`."""

@@ -118,10 +118,11 @@ class GapCurves:
         """Everything the equations of motion need at ``(lam, x)`` in one pass:
         ``(i, di/dlam, di/dx, F_close, dF_close/dlam)`` (A, A/Wb, A/m, N, N/Wb)."""
         if (flux.ONE_POINT_FLOATS and np.size(lam) == 1 and np.size(x) == 1
-                and self.scale.size == 1 and self.stroke.size == 1):
+                and np.size(self.scale) == 1 and np.size(self.stroke) == 1):
             one = self._state_one(float(np.ravel(lam)[0]), float(np.ravel(x)[0]))
             if one is not None:   # one point (an armature's flight): Python floats
-                shape = np.broadcast_shapes(np.shape(lam), np.shape(x), self.scale.shape)
+                shape = np.broadcast_shapes(np.shape(lam), np.shape(x), np.shape(self.scale),
+                                            np.shape(self.stroke))
                 return tuple(np.full(shape, v) for v in one)
         i_o, i_c = self._currents(lam)
         w_o, w_c = self._energies(lam, i_o, i_c)
@@ -136,7 +137,7 @@ class GapCurves:
         (numpy's per-call cost on 1-element arrays dominates a flight; the same IEEE
         operations in the same order give the same bits); None where a division by zero
         needs numpy's infinities."""
-        scale, stroke = float(self.scale.reshape(-1)[0]), float(self.stroke.reshape(-1)[0])
+        scale, stroke = float(np.ravel(self.scale)[0]), float(np.ravel(self.stroke)[0])
         try:
             u = lam / scale
             a = abs(u)
