@@ -22,8 +22,14 @@ path) and through the float-by-float ``fly_point`` (the new default), alternatel
 of three each. Targets: new >= 10x faster; largest difference of current, gap, velocity
 and event times <= 1e-9 relative.
 
+The same drop-out actuation again with the saturating latch's open and seated flux-linkage
+curves (:func:`latch_curves_text`, as ``bench_design.py armflux``): the numpy batch of one
+point with the curves' numpy law (``flux.ONE_POINT_FLOATS = False``, the old path) against
+``fly_point`` with the curves' one-point law in floats (``FluxCurve._current_of_one``,
+``GapCurves._state_one``); the same targets.
+
 Run: ``python benchmarks/bench_armature.py [points]`` (``dropout`` as the argument runs
-only the second case).
+only the drop-out cases).
 """
 
 from __future__ import annotations
@@ -39,6 +45,7 @@ sys.path.insert(0, str(ROOT))
 
 from coildrive.config import load_drive  # noqa: E402
 from coildrive.model import armature_flight as armature  # noqa: E402
+from coildrive.model import flux  # noqa: E402
 from coildrive.model.armature import ArmatureParams, params_from_loop  # noqa: E402
 from coildrive.model.armature_runs import pull_in, release  # noqa: E402
 from coildrive.model.armature_sim import pull_in_reference, release_reference  # noqa: E402
@@ -61,10 +68,45 @@ def points(n: int, seed: int = 7) -> tuple[ArmatureParams, np.ndarray]:
     return p, i_off
 
 
+def latch_curves_text() -> str:
+    """The locker-latch example with a saturating coil's open and seated curves in place of
+    its inductances (invented: the iron ``i = psi / 90 mH + 6.43e5 psi^5`` seated, plus
+    the 4 mm gap's linear part open), its derived hold and drop-out currents written out."""
+    latch = ROOT / "examples" / "locker-latch-12v.toml"
+    psi = np.linspace(0.0, 0.1, 11)
+    seated = psi / 0.090 + 6.43e5 * psi**5
+    opened = seated + psi * (1 / 0.025 - 1 / 0.090)
+
+    def row(values):
+        return ", ".join(f"{x:.9g}" for x in values)
+
+    lines = [ln for ln in latch.read_text().splitlines()
+             if not ln.startswith(("inductance =", "inductance_open", "inductance_closed"))]
+    text = "\n".join(lines).replace("[coil]", f"[coil]\nflux_current = [{row(opened)}]\n"
+                                     f"flux_linkage = [{row(psi)}]\nseated_current = [{row(seated)}]\n"
+                                     f"seated_linkage = [{row(psi)}]", 1)
+    text = text.replace("\n[hold]", '\n[hold]\ncurrent = "0.3 A"', 1).replace(
+        "\n[armature]", '\n[release]\ncurrent = "0.15 A"\n\n[armature]', 1)
+    return text + "\n"
+
+
 def dropout(repeat: int = 3) -> bool:
-    """The drop-out actuation through the old and the new one-point path; True if the
-    targets are met."""
-    drive = load_drive(ROOT / "examples" / "locker-latch-12v.toml")
+    """The drop-out actuation through the old and the new one-point path, with the linear
+    L(x) and with the two curves; True if the targets are met."""
+    import tempfile
+
+    with tempfile.TemporaryDirectory() as tmp:
+        curves = Path(tmp) / "latch-curves.toml"
+        curves.write_text(latch_curves_text())
+        ok = True
+        for what, path in (("linear L(x)", ROOT / "examples" / "locker-latch-12v.toml"),
+                           ("two flux-linkage curves", curves)):
+            print(f"with the {what}:")
+            ok = _dropout(load_drive(path), repeat) and ok
+    return ok
+
+
+def _dropout(drive, repeat: int) -> bool:
     args = (drive, 12.0, 25.0, 0.0288, 0.45, 25e3, 0.037)
     best = {False: float("inf"), True: float("inf")}
     waves = {}
@@ -72,11 +114,13 @@ def dropout(repeat: int = 3) -> bool:
         for _ in range(repeat):
             for scalar in (False, True):  # alternate, so both see the same machine load
                 armature.SINGLE_POINT_SCALAR = scalar
+                flux.ONE_POINT_FLOATS = scalar
                 t0 = time.perf_counter()
                 waves[scalar] = armature_actuation(*args)
                 best[scalar] = min(best[scalar], time.perf_counter() - t0)
     finally:
         armature.SINGLE_POINT_SCALAR = True
+        flux.ONE_POINT_FLOATS = True
     old, new = waves[False], waves[True]
     lifted = float(new.position[(new.time > 0.0288) & (new.time < new.events["off"])].max())
     print(f"drop-out actuation (duty 0.45, 25 kHz, hold 0.037 s; lifts {lifted * 1e3:.2f} mm "

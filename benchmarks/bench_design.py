@@ -276,27 +276,14 @@ def bench_armature_curves_design(runs: int = 5) -> None:
     wall against the 2 s target."""
     import tempfile
 
-    import numpy as np
+    from bench_armature import latch_curves_text
 
     env = {**os.environ, "PYTHONPATH": str(ROOT)}
     latch = ROOT / "examples" / "locker-latch-12v.toml"
-    psi = np.linspace(0.0, 0.1, 11)
-    seated = psi / 0.090 + 6.43e5 * psi**5
-    opened = seated + psi * (1 / 0.025 - 1 / 0.090)
-
-    def row(values):
-        return ", ".join(f"{x:.9g}" for x in values)
-
-    lines = [ln for ln in latch.read_text().splitlines()
-             if not ln.startswith(("inductance =", "inductance_open", "inductance_closed"))]
-    text = "\n".join(lines).replace("[coil]", f"[coil]\nflux_current = [{row(opened)}]\n"
-                                     f"flux_linkage = [{row(psi)}]\nseated_current = [{row(seated)}]\n"
-                                     f"seated_linkage = [{row(psi)}]", 1)
-    text = text.replace("\n[hold]", '\n[hold]\ncurrent = "0.3 A"', 1).replace(
-        "\n[armature]", '\n[release]\ncurrent = "0.15 A"\n\n[armature]', 1)
+    text = latch_curves_text()
     with tempfile.TemporaryDirectory() as tmp:
         curves = Path(tmp) / "latch-curves.toml"
-        curves.write_text(text + "\n")
+        curves.write_text(text)
         _design_pair("[armature] and two flux-linkage curves", latch, curves, "the linear L(x)",
                      runs, env)
 
@@ -346,8 +333,35 @@ def bench_droop_design(runs: int = 5) -> None:
         _design_pair("a flux-linkage curve on a drooping bus", stiff, droop, "the stiff bus", runs, env)
 
 
+def bench_examples(runs: int = 3) -> None:
+    """``coildrive design --json`` of every bundled example (each with its own board; a
+    system file through ``design`` too), paired with ``import numpy, typer`` (the floor
+    every run pays): median CPU and wall of each, against the 2 s target and as a ratio
+    to the floor."""
+    env = {**os.environ, "PYTHONPATH": str(ROOT)}
+    examples = sorted((ROOT / "examples").rglob("*.toml"))
+    cmds = {"base": [sys.executable, "-c", "import numpy, typer"]}
+    cmds.update({str(p.relative_to(ROOT / "examples")): [sys.executable, "-m", "coildrive", "design",
+                                                         str(p), "--json"] for p in examples})
+    cpu, wall = _paired(cmds, runs, env)
+    b_cpu, b_wall = statistics.median(cpu["base"]), statistics.median(wall["base"])
+    print(f"design --json of every example (median of {runs} paired; import numpy, typer: "
+          f"{b_cpu:.3f} s CPU, {b_wall:.3f} s wall):")
+    worst = 0.0
+    for name in cmds:
+        if name == "base":
+            continue
+        c, w = statistics.median(cpu[name]), statistics.median(wall[name])
+        worst = max(worst, c)
+        print(f"  {name:45s} {c:.3f} s CPU ({c / b_cpu:.1f}x the floor), {w:.3f} s wall")
+    print(f"  slowest {worst:.3f} s CPU (target < 2 s: {'ok' if worst < 2.0 else 'MISSED'})")
+
+
 def main() -> None:
     os.environ.setdefault("OMP_NUM_THREADS", "1")
+    if "examples" in sys.argv:
+        bench_examples()
+        return
     if "droop" in sys.argv:
         bench_droop_design()
         return
@@ -366,6 +380,7 @@ def main() -> None:
         bench_monte_carlo_memory()
     bench_startup()
     bench_flux_design()
+    bench_examples()
 
 
 if __name__ == "__main__":

@@ -8,7 +8,16 @@ constraints and ranking (best of three runs, one process).
 Also: the duty-for-mean inversion (safeguarded secant) against the 44-step bisection it
 replaced, on the same 10^6 operating points: speed ratio and largest duty difference.
 
-Run: ``python benchmarks/bench_tune.py``.
+A third case, ``curve``: the offline tune of a saturating coil (the flux-linkage curve of
+examples/saturating-valve-24v.toml, and the same file on the full-bridge board with mixed
+decay, ``hold.fast_fraction = 0.3``), whose supply table is kept monotone by
+:func:`coildrive.design.regulation._monotone`: the batched search (every entry at once,
+then the next ``LOOK_AHEAD`` counts at once) against the serial one-count-at-a-time
+bisection it replaced (``LOOK_AHEAD = 0``), alternately, best of three each, CPU time;
+the two sweeps' JSON must be equal (the run's own ``seconds`` aside).
+
+Run: ``python benchmarks/bench_tune.py`` (``curve`` as the argument runs only the third
+case).
 """
 
 from __future__ import annotations
@@ -74,10 +83,47 @@ def bench_inversion(n: int = 1_000_000) -> None:
           "(target <= 1e-9)")
 
 
+def bench_curve(runs: int = 3) -> None:
+    import json
+    import tempfile
+
+    from coildrive.design import regulation
+    from coildrive.tune.report import tune_dict
+
+    valve = ROOT / "examples" / "saturating-valve-24v.toml"
+    with tempfile.TemporaryDirectory() as tmp:
+        mixed = Path(tmp) / "saturating-valve-mixed.toml"
+        mixed.write_text(valve.read_text().replace('board = "fast-32bit-clamp"',
+                                                   'board = "bridge-m32-fast"', 1)
+                         .replace("[hold]\n", "[hold]\nfast_fraction = 0.3\n", 1))
+        for name, path in (("saturating valve", valve), ("mixed decay on the bridge", mixed)):
+            drive = load_drive(path)
+            best = {16: float("inf"), 0: float("inf")}
+            out = {}
+            try:
+                for _ in range(runs):
+                    for ahead in (16, 0):   # alternate: both see the same machine load
+                        regulation.LOOK_AHEAD = ahead
+                        t0 = time.process_time()
+                        r = tune(drive, TuneOptions())
+                        best[ahead] = min(best[ahead], time.process_time() - t0)
+                        doc = json.loads(json.dumps(tune_dict(r)))
+                        doc["sweep"].pop("seconds", None)
+                        out[ahead] = doc
+            finally:
+                regulation.LOOK_AHEAD = 16
+            print(f"tune of the {name}: batched {best[16]:.2f} s CPU, serial {best[0]:.2f} s "
+                  f"(x{best[0] / best[16]:.1f}); JSON {'equal' if out[16] == out[0] else 'DIFFERENT'}")
+
+
 def main() -> None:
     os.environ.setdefault("OMP_NUM_THREADS", "1")
+    if sys.argv[1:] == ["curve"]:
+        bench_curve()
+        return
     bench_sweep()
     bench_inversion()
+    bench_curve()
 
 
 if __name__ == "__main__":

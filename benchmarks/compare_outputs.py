@@ -5,6 +5,7 @@ with the old code, record them with the new, compare byte for byte.
 
     python benchmarks/compare_outputs.py record OUT_DIR      # with the code under test installed
     python benchmarks/compare_outputs.py compare OLD_DIR NEW_DIR
+    python benchmarks/compare_outputs.py record OUT_DIR --quick   # the figures only (below)
 
 What is recorded, through the command line (typer's CliRunner, in-process), for each
 example x board:
@@ -15,6 +16,11 @@ example x board:
 - every command's exit code.
 Plots are compared byte for byte too: matplotlib writes no timestamp into our PNGs.
 A design whose checks fail writes no header; that absence is recorded as well.
+
+``--quick`` records only the figures: `design --json` and its `--header` for every
+example x board (current-mode variants too) and `tune --json` -- no plots, no simulate
+CSVs (both read the Design those figures come from), in about a third of the time: for
+a change inside the design's or the sweep's arithmetic.
 """
 from __future__ import annotations
 
@@ -61,12 +67,12 @@ def _drive_points(drive: Path) -> list[tuple[str, str, str, str]]:
             (str(supply["max"]), str(ambient["min"]), "0.93", "1.15")]
 
 
-def _record_one(job: tuple[Path, str, Path]) -> dict[str, str]:
+def _record_one(job: tuple[Path, str, Path, bool]) -> dict[str, str]:
     from typer.testing import CliRunner
 
     from coildrive.cli import app
 
-    drive, board, out = job
+    drive, board, out, quick = job
     runner = CliRunner()
     tag = f"{drive.stem}@{board}"
     codes: dict[str, str] = {}
@@ -76,15 +82,17 @@ def _record_one(job: tuple[Path, str, Path]) -> dict[str, str]:
         def run(name: str, args: list[str]) -> str:
             res = runner.invoke(app, args, catch_exceptions=False)
             codes[f"{tag}/{name}"] = str(res.exit_code)
-            return res.stdout
+            # an error names its file: the two records' checkouts differ, their messages not
+            return res.stdout.replace(str(ROOT), "<ROOT>").replace(str(out), "<OUT>")
 
+        plot = [] if quick else ["--plot", str(t / "d.png")]
         stdout = run("design", ["design", str(drive), "--board", board, "--json",
-                                "--header", str(t / "h.h"), "--plot", str(t / "d.png")])
+                                "--header", str(t / "h.h"), *plot])
         (out / f"{tag}.design.json").write_text(stdout)
         for src, dst in (("h.h", "header.h"), ("d.png", "design.png")):
             if (t / src).exists():
                 (out / f"{tag}.{dst}").write_bytes((t / src).read_bytes())
-        for k, (supply, temp, rf, lf) in enumerate(_drive_points(drive)):
+        for k, (supply, temp, rf, lf) in enumerate([] if quick else _drive_points(drive)):
             run(f"simulate{k}", ["simulate", str(drive), "--board", board, "--supply", supply,
                                  "--coil-temp", temp, "--r-factor", rf, "--l-factor", lf,
                                  "--hold-time", "5 ms", "--csv", str(t / f"s{k}.csv")])
@@ -92,8 +100,8 @@ def _record_one(job: tuple[Path, str, Path]) -> dict[str, str]:
                 (out / f"{tag}.simulate{k}.csv").write_bytes((t / f"s{k}.csv").read_bytes())
         if drive.parent.name == "variants":  # tune sweeps voltage-mode holds only
             return codes
-        stdout = run("tune", ["tune", str(drive), "--board", board, "--json",
-                              "--plot", str(t / "t.png")])
+        plot = [] if quick else ["--plot", str(t / "t.png")]
+        stdout = run("tune", ["tune", str(drive), "--board", board, "--json", *plot])
         stdout = re.sub(r'"(elapsed_s|seconds)": [0-9.e+-]+', r'"\1": 0', stdout)
         (out / f"{tag}.tune.json").write_text(stdout)
         if (t / "t.png").exists():
@@ -101,9 +109,9 @@ def _record_one(job: tuple[Path, str, Path]) -> dict[str, str]:
     return codes
 
 
-def record(out: Path, workers: int = 2) -> None:
+def record(out: Path, workers: int = 2, quick: bool = False) -> None:
     out.mkdir(parents=True, exist_ok=True)
-    jobs = [(d, b, out) for d in _variants(out) for b in BOARDS]
+    jobs = [(d, b, out, quick) for d in _variants(out) for b in BOARDS]
     codes: dict[str, str] = {}
     with ProcessPoolExecutor(workers) as pool:
         for part in pool.map(_record_one, jobs):
@@ -130,8 +138,8 @@ def compare(old: Path, new: Path) -> int:
 
 
 if __name__ == "__main__":
-    if len(sys.argv) == 3 and sys.argv[1] == "record":
-        record(Path(sys.argv[2]))
+    if len(sys.argv) in (3, 4) and sys.argv[1] == "record" and sys.argv[3:] in ([], ["--quick"]):
+        record(Path(sys.argv[2]), quick=sys.argv[3:] == ["--quick"])
     elif len(sys.argv) == 4 and sys.argv[1] == "compare":
         sys.exit(compare(Path(sys.argv[2]), Path(sys.argv[3])))
     else:

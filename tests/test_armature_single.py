@@ -27,7 +27,7 @@ import numpy as np
 import pytest
 
 from coildrive.config import load_drive
-from coildrive.model import armature, armature_flight
+from coildrive.model import armature, armature_flight, flux
 from coildrive.model.armature import SEATED, ArmatureParams
 from coildrive.model.armature_flight import OnePoint, fly, fly_point
 from coildrive.model.armature_runs import pull_in, release
@@ -232,3 +232,39 @@ def test_a_second_freewheel_path_uses_its_own_constants(monkeypatch):
                     stop=lambda r: r.state == "open" and not r.live)
     assert new.events["zero"] < 0.5 * (slow.events["zero"] - 0.03) + 0.03, \
         "the fast path's higher clamp voltage ends the current sooner"
+
+
+def test_one_point_with_curves_equals_the_batch():
+    """With an open and a seated flux-linkage curve the one-point flight takes the curves'
+    law in Python floats (``FluxCurve._current_of_one``, ``GapCurves._state_one``): the
+    same operations in the same order as numpy's, so point 0 of a two-point batch gives
+    the same pull-in, release and drop-out actuation to 1e-9 (in fact to rounding)."""
+    from test_armature_curves import with_curves
+
+    p, other = latch(), latch(mass=0.03)
+    single, both = with_curves(p), with_curves(pair(p, other))
+    assert_same(pull_in(single, peak_time=0.008), pull_in(both, peak_time=0.008), "curves pull-in")
+    assert_same(release(single, 0.4), release(both, 0.4), "curves release")
+
+
+def test_dropout_with_curves_equals_the_numpy_batch(monkeypatch, tmp_path):
+    """A hold too weak to keep the armature seated, on the saturating latch's curves: the
+    armature flies every PWM period through the one-point path, and the whole actuation
+    equals the numpy batch of one point's (the curves' law in numpy too) to 1e-9 of each
+    signal's largest value."""
+    from test_armature_curves import curve_drive
+
+    drive = load_drive(curve_drive(tmp_path))
+    args = (drive, 12.0, 25.0, 0.0288, 0.45, 25e3, 0.012)
+    new = armature_actuation(*args)
+    monkeypatch.setattr(armature_flight, "SINGLE_POINT_SCALAR", False)
+    monkeypatch.setattr(flux, "ONE_POINT_FLOATS", False)   # the curves' law in numpy too
+    old = armature_actuation(*args)
+    assert new.time.size == old.time.size and new.events.keys() == old.events.keys()
+    in_hold = (new.time > 0.0288) & (new.time < new.events["off"])
+    assert float(new.position[in_hold].max()) > 0.0, "the armature lifts in the hold"
+    for k in ("time", "current", "position", "velocity"):
+        a, b = getattr(new, k), getattr(old, k)
+        assert np.max(np.abs(a - b)) <= RTOL * np.max(np.abs(b)), k
+    for k, v in old.events.items():
+        assert new.events[k] == pytest.approx(v, rel=RTOL, abs=0), k

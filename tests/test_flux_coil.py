@@ -288,3 +288,26 @@ def test_split_decay_actuation_follows_both_paths(tmp_path):
     i_cut = float(np.interp(t_off, w.time, w.current))
     t_zero = float(decay_time(0.0, i_cut, fast.r_off, fast.v_off, fast.inductance))
     assert w.events["zero"] == pytest.approx(t_off + t_zero, rel=1e-9)
+
+
+def test_one_point_inversion_and_gap_state_are_the_batchs_bits():
+    """``current_of`` of one flux linkage runs in Python floats (an armature's flight asks
+    for tens of thousands); ``GapCurves.state`` of one point too. Both are step for step
+    the vectorised arithmetic, so they equal point 0 of a two-point batch bit for bit --
+    in every piece, on the table's points, at zero and on the extension above it."""
+    from test_armature_curves import open_table, seated_table
+
+    from coildrive.model.gap_curves import GapCurves
+
+    o, c = flux.FluxCurve(*open_table()), flux.FluxCurve(*seated_table())
+    probes = np.concatenate([np.linspace(0.0, 0.13, 157), c.flux, [1e-300, 0.1 + 1e-12]])
+    for curve in (o, c):
+        for psi in probes:
+            assert curve.current_of(psi) == curve.current_of(np.array([psi, psi]))[0], psi
+    gap = GapCurves(o, c, np.array([1.03]), np.array([0.004]))
+    gap2 = GapCurves(o, c, np.array([1.03, 1.03]), np.array([0.004, 0.004]))
+    for lam in (-0.02, 0.0, 0.031, 0.0999, 0.12):
+        for x in (0.0, 0.0017, 0.004):
+            one = gap.state(np.array([lam]), np.array([x]))
+            two = gap2.state(np.array([lam, lam]), np.array([x, x]))
+            assert all(a[0] == b[0] for a, b in zip(one, two)), (lam, x)

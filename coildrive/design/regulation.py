@@ -38,6 +38,9 @@ from .timer import TimerSetting
 
 #: Entries in the supply-compensated duty table (and the peak table).
 TABLE_ENTRIES = 16
+#: Counts above an entry that :func:`_monotone` tries in one batch before bisecting (0:
+#: the serial search, one entry and one count at a time, kept for the benchmark).
+LOOK_AHEAD = 16
 #: Rounds of the duty <-> hottest-coil iteration before it is taken as settled.
 MAX_ROUNDS = 60
 #: The hottest coil is settled when no tolerance corner moved more than this (K).
@@ -205,25 +208,52 @@ def _monotone(drive: Drive, tol: Tolerances, hot: np.ndarray, design_v: np.ndarr
     k = np.concatenate([np.arange(len(tol)), np.arange(len(tol))])
     t = tol.take(k)
 
-    def mean(i: int, c: int) -> np.ndarray:
-        lp = loop(drive, bottom[i] + 0.0 * temps, temps, t.r_factor, t.l_factor, **_factors(t))
-        return pwm_steady_state(c / period, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
-                                lp.inductance, mixed=lp.mixed).mean
-    below = mean(0, int(out[0]))
+    def means(entries, counts) -> np.ndarray:
+        """Mean hold currents ``(len(counts), coils)`` A: entry ``entries[j]``'s lowest
+        supply at compare ``counts[j]``, every coil, in one vectorised steady state."""
+        m, n = len(counts), temps.size
+        tt = t.take(np.tile(np.arange(n), m))
+        lp = loop(drive, np.repeat(bottom[np.asarray(entries)], n), np.tile(temps, m),
+                  tt.r_factor, tt.l_factor, **_factors(tt))
+        return pwm_steady_state(np.repeat(np.asarray(counts) / period, n), frequency, lp.v_on,
+                                lp.r_on, lp.r_off, lp.v_off, lp.inductance,
+                                mixed=lp.mixed).mean.reshape(m, n)
+
+    def short(here: np.ndarray, below: np.ndarray) -> np.ndarray:
+        """Per row of ``here``: does some coil carry less than it does at ``below``?"""
+        return np.any(here < below * (1.0 - 1e-12), axis=-1)
+
+    if LOOK_AHEAD:   # every entry at its own count, one batch
+        start = means(np.arange(len(out)), out)
+    else:            # the serial search (benchmarks/bench_tune.py's side-by-side)
+        start = np.array([means([i], [out[i]])[0] for i in range(len(out))])
+    below = start[0]
     for i in range(1, len(out)):
-        here = mean(i, int(out[i]))
-        if np.any(here < below * (1.0 - 1e-12)):
-            # the smallest count that keeps every coil's current: a bisection (the mean
-            # rises with the duty), at most log2(period) steps
-            lo, hi = int(out[i]), int(period)
+        here = start[i]
+        if short(here, below):
+            # the smallest count that keeps every coil's current (the mean rises with the
+            # duty): the rounding dip it makes up is a few counts, so the next LOOK_AHEAD
+            # counts are tried in one batch (one vectorised steady state instead of a
+            # dozen serial ones); past them, a bisection, at most log2(period) steps
+            lo, hi, here = int(out[i]), int(period), None
+            ahead = np.arange(lo + 1, min(lo + LOOK_AHEAD, hi - 1) + 1)
+            if ahead.size:
+                got = means(np.full(ahead.size, i), ahead)
+                fine = ~short(got, below)
+                if np.any(fine):
+                    j = int(np.argmax(fine))
+                    lo, hi, here = int(ahead[j]) - 1, int(ahead[j]), got[j]
+                else:
+                    lo = int(ahead[-1])
             while hi - lo > 1:
                 mid = (lo + hi) // 2
-                if np.any(mean(i, mid) < below * (1.0 - 1e-12)):
+                if short(means([i], [mid])[0], below):
                     lo = mid
                 else:
                     hi = mid
+            if here is None:
+                here = means([i], [hi])[0]
             out[i] = hi
-            here = mean(i, hi)
         below = here
     return out
 

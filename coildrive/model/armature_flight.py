@@ -337,11 +337,14 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
     on the drooping bus; it ends (code START) where the flux linkage rises to ``flux_to`` Wb
 
     A batch of one point goes through :func:`fly_point` (Python floats: numpy's per-call
-    overhead on 1-element arrays would dominate; same algorithm and results), unless
-    :data:`SINGLE_POINT_SCALAR` is False or the coil has curves (``p.curves``: their
-    tabulated law is numpy's); its ``path_*`` then hold the accepted steps only.
+    overhead on 1-element arrays would dominate; same algorithm and results; the coil's
+    curves, ``p.curves``, through their one-point law in floats), unless
+    :data:`SINGLE_POINT_SCALAR` is False, or the coil has curves and ``stiff`` (the
+    Rosenbrock step's Jacobian of the curves is numpy's); its ``path_*`` then hold the
+    accepted steps only.
     """
-    if t.size == 1 and SINGLE_POINT_SCALAR and p.curves is None and p.eddy is None and not p.droops:
+    if (t.size == 1 and SINGLE_POINT_SCALAR and (p.curves is None or not stiff)
+            and p.eddy is None and not p.droops and held is None and flux_to is None):
         return _fly_single(p, t, y, t_end, active, on, live, rtol, record, query, query_y,
                            track, peak, max_steps, stiff)
     n = t.size
@@ -513,7 +516,7 @@ class OnePoint:
     m, m/s, before the relative tolerance)."""
 
     __slots__ = ("inv_lc", "l_closed", "beta", "stroke", "v_on", "r_on", "v_off", "r_off",
-                 "f0", "km", "cm", "dm", "scale")
+                 "f0", "km", "cm", "dm", "scale", "curves", "inv_m")
 
     def __init__(self, p: ArmatureParams, scale=None):
         if len(p) != 1:
@@ -530,6 +533,9 @@ class OnePoint:
         self.km = g["rate"] / g["mass"]
         self.cm = g["beta"] * self.inv_lc / (2.0 * g["mass"])
         self.dm = g["damping"] / g["mass"]
+        #: the open and seated curves (None: the linear L(x)) and 1 / mass (1/kg)
+        self.curves = p.curves
+        self.inv_m = 1.0 / g["mass"]
         s = p.reference_scales()[:, 0] if scale is None else scale
         self.scale = tuple(float(a) for a in s)
 
@@ -614,9 +620,23 @@ def fly_point(c: OnePoint, t: float, y, t_end: float, on: bool, live: bool,
     dr = c.r_on if on else c.r_off
     off_live = (not on) and live
 
+    curves, inv_m = c.curves, c.inv_m
+
+    def law(lam, x):
+        """``(i, F_close)`` of the curves (A, N) at one point."""
+        one = curves._state_one(lam, x)
+        if one is None:   # a division by zero: numpy's infinities decide
+            one = [float(a.reshape(-1)[0]) for a in curves.state(np.array([lam]), np.array([x]))]
+        return one[0], one[3]
+
     def rhs(lam, x, v):
-        i = lam * (1.0 + beta * x) * inv_lc
-        return (lv * (dv - dr * i), v, f0c - km * x - cm * lam * lam - dm * v, i, i * i)
+        if curves is None:
+            i = lam * (1.0 + beta * x) * inv_lc
+            pull = cm * lam * lam
+        else:   # as _Rhs: the curves' current and pull F / m
+            i, force = law(lam, x)
+            pull = force * inv_m
+        return (lv * (dv - dr * i), v, f0c - km * x - pull - dm * v, i, i * i)
 
     s0, s1, s2 = (rtol * a for a in c.scale)
     t = float(t)
@@ -749,7 +769,8 @@ def fly_point(c: OnePoint, t: float, y, t_end: float, on: bool, live: bool,
                 th = (query - t) / (h if h > 0 else 1.0)
                 y_query = _hermite5(y, y_full, k1, k7, h, th)
             if track:
-                i_new = y_new[0] * (1.0 + beta * y_new[1]) / lc
+                i_new = (y_new[0] * (1.0 + beta * y_new[1]) / lc if curves is None
+                         else law(y_new[0], y_new[1])[0])
                 if i_new > peak[0]:
                     peak[0], peak[1] = i_new, t_new
             t = t_new

@@ -32,13 +32,18 @@ Units: A, Wb (V*s), H, V, ohm, s.
 
 from __future__ import annotations
 
+import bisect
 import functools
+import math
 from dataclasses import dataclass
 
 import numpy as np
 
 from .roots import falling_root
 
+#: One point's inversion (and :mod:`gap_curves`' state of one point) in Python floats, the
+#: same steps as the arrays' (False: numpy's, for benchmarks/bench_armature.py's side by side).
+ONE_POINT_FLOATS = True
 #: Gauss-Legendre nodes per table interval.
 _NODES = 8
 _GL_X, _GL_W = np.polynomial.legendre.leggauss(_NODES)
@@ -136,6 +141,11 @@ class FluxCurve:
         leaving it bisects), to 1e-14 of the piece's length or the flux to rounding; the
         extension above the table is linear and exact."""
         psi = np.asarray(psi, float)
+        if psi.size == 1 and ONE_POINT_FLOATS:
+            # one point (an armature's flight takes tens of thousands of these): the same
+            # steps in Python floats, free of numpy's per-call cost; IEEE arithmetic in the
+            # same order gives the same bits (tests/test_flux_coil.py compares them)
+            return np.full(psi.shape, self._current_of_one(float(psi.reshape(-1)[0]), iterations))
         k = np.clip(np.searchsorted(self.flux, psi, side="right") - 1, 0, self.base.size - 1)
         c = self.coef[:, k]
         lo = np.zeros_like(psi)
@@ -162,6 +172,69 @@ class FluxCurve:
             if done:
                 break
         return np.where(skip, np.nan, self.base[k] + d)
+
+    @functools.cached_property
+    def _lists(self):
+        """The table as Python floats, for :meth:`_current_of_one`."""
+        return (self.flux.tolist(), self.base.tolist(), self.coef.T.tolist(),
+                np.diff(self.edges).tolist())
+
+    def _piece_one(self, i: float):
+        """``(piece index, offset A, coefficients)`` of one current, as :meth:`_index`."""
+        _, base, coef, _ = self._lists
+        k = max(bisect.bisect_right(base, i) - 1, 0)
+        return k, i - base[k], coef[k]
+
+    def incremental_one(self, i: float) -> float:
+        """:meth:`incremental` of one current (A, a float) to H, in Python floats."""
+        _, d, (c0, c1, c2, _) = self._piece_one(i)
+        return (3 * c0 * d + 2 * c1) * d + c2
+
+    def coenergy_one(self, i: float) -> float:
+        """:meth:`coenergy` of one current (A, a float) to J, in Python floats."""
+        k, d, (c0, c1, c2, c3) = self._piece_one(i)
+        return self._whole_list[k] + (((c0 / 4 * d + c1 / 3) * d + c2 / 2) * d + c3) * d
+
+    @functools.cached_property
+    def _whole_list(self):
+        return self._whole.tolist()
+
+    def _current_of_one(self, psi: float, iterations: int = 60) -> float:
+        """:meth:`current_of` of one flux linkage (Wb, a float) to A: step for step the
+        vectorised loop of one point, in Python floats."""
+        if not math.isfinite(psi):
+            return math.nan
+        flux, base, coef, width = self._lists
+        k = min(max(bisect.bisect_right(flux, psi) - 1, 0), len(base) - 1)
+        c0, c1, c2, c3 = coef[k]
+        lo = 0.0
+        hi = width[k] if k < len(flux) - 1 else math.inf
+        finite_hi = math.isfinite(hi)
+        try:
+            d = ((psi - c3) / (flux[min(k + 1, len(flux) - 1)] - c3) * hi if finite_hi
+                 else (psi - c3) / c2)
+        except ZeroDivisionError:
+            d = math.nan
+        d = min(max(d, 0.0), hi) if math.isfinite(d) else 0.0
+        tol = 1e-14 * (hi if finite_hi else 1.0 + abs(d))
+        for _ in range(iterations):
+            f = ((c0 * d + c1) * d + c2) * d + c3 - psi
+            slope = (3 * c0 * d + 2 * c1) * d + c2
+            if f < 0:
+                lo = d
+            if f > 0:
+                hi = d
+            try:
+                nxt = d - f / slope
+            except ZeroDivisionError:
+                nxt = math.nan
+            if not math.isfinite(nxt) or nxt < lo or nxt > hi:
+                nxt = 0.5 * (lo + hi)
+            done = abs(nxt - d) <= tol or abs(f) <= 4e-16 * abs(psi)
+            d = nxt
+            if done:
+                break
+        return base[k] + d
 
 
 @functools.lru_cache(maxsize=32)

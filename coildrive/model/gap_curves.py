@@ -39,10 +39,12 @@ Units: A, Wb (V*s), J, m, N.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
 
+from . import flux
 from .flux import FluxCoil, FluxCurve
 
 
@@ -115,6 +117,13 @@ class GapCurves:
     def state(self, lam, x):
         """Everything the equations of motion need at ``(lam, x)`` in one pass:
         ``(i, di/dlam, di/dx, F_close, dF_close/dlam)`` (A, A/Wb, A/m, N, N/Wb)."""
+        if (flux.ONE_POINT_FLOATS and np.size(lam) == 1 and np.size(x) == 1
+                and np.size(self.scale) == 1 and np.size(self.stroke) == 1):
+            one = self._state_one(float(np.ravel(lam)[0]), float(np.ravel(x)[0]))
+            if one is not None:   # one point (an armature's flight): Python floats
+                shape = np.broadcast_shapes(np.shape(lam), np.shape(x), np.shape(self.scale),
+                                            np.shape(self.stroke))
+                return tuple(np.full(shape, v) for v in one)
         i_o, i_c = self._currents(lam)
         w_o, w_c = self._energies(lam, i_o, i_c)
         s = np.asarray(x, float) / self.stroke
@@ -122,6 +131,28 @@ class GapCurves:
         di_dl = ((1.0 - s) / self.seated.incremental(np.abs(i_c))
                  + s / self.open.incremental(np.abs(i_o))) / self.scale
         return i_c + s * (i_o - i_c), di_dl, gap, (w_o - w_c) / self.stroke, gap
+
+    def _state_one(self, lam: float, x: float):
+        """:meth:`state` of one point in Python floats, step for step the same arithmetic
+        (numpy's per-call cost on 1-element arrays dominates a flight; the same IEEE
+        operations in the same order give the same bits); None where a division by zero
+        needs numpy's infinities."""
+        scale, stroke = float(np.ravel(self.scale)[0]), float(np.ravel(self.stroke)[0])
+        try:
+            u = lam / scale
+            a = abs(u)
+            sign = (1.0 if u > 0 else -1.0 if u < 0 else 0.0) if u == u else math.nan
+            i_o = sign * self.open._current_of_one(a)
+            i_c = sign * self.seated._current_of_one(a)
+            w_o = lam * i_o - scale * self.open.coenergy_one(abs(i_o))
+            w_c = lam * i_c - scale * self.seated.coenergy_one(abs(i_c))
+            s = x / stroke
+            gap = (i_o - i_c) / stroke
+            di_dl = ((1.0 - s) / self.seated.incremental_one(abs(i_c))
+                     + s / self.open.incremental_one(abs(i_o))) / scale
+        except ZeroDivisionError:
+            return None
+        return i_c + s * (i_o - i_c), di_dl, gap, (w_o - w_c) / stroke, gap
 
     def flux_for_force(self, force, iterations: int = 100):
         """Flux linkage Wb whose closing force is ``force`` N (0 where ``force <= 0``):
