@@ -402,11 +402,13 @@ def current(coil: FluxCoil, t, i0, v, r, iterations: int = 80):
         tol = 1e-13 * (np.maximum(np.abs(a_), np.abs(i0_)) + 1e-300)
         for _ in range(iterations):   # each pass keeps only the points not yet done
             f = time(kk, i0_, x, v_, r_) - t_
-            slope = kk.incremental(x) / (v_ - r_ * x)   # dt/di (negative when falling)
             toward_i0 = (f > 0) == up_   # this current comes after t: the answer is toward i0
             hi_ = np.where(toward_i0, x, hi_)
             lo_ = np.where(toward_i0, lo_, x)
+            # dt/di (negative when falling); infinite on the asymptote v/r itself (a bracket
+            # end the search can land on): the step is then bad and bisects
             with np.errstate(divide="ignore", invalid="ignore"):
+                slope = kk.incremental(x) / (v_ - r_ * x)
                 nxt = x - f / slope
             bad = ~np.isfinite(nxt) | (nxt < lo_) | (nxt > hi_)
             nxt = np.where(bad, 0.5 * (lo_ + hi_), nxt)
