@@ -1234,10 +1234,6 @@ def _eddy_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel, swit
         raise InputError(source, "hold.regulation", f"\"closed_loop\" with {what} and a "
                          "flux-linkage curve (coil.flux_current) is not supported yet: use "
                          "\"fixed\" or \"supply_table\", or one of the two coil terms")
-    if freewheel.split_decay and hold.mode == "current":
-        raise InputError(source, "freewheel.split_decay", f"split decay with a current-mode hold "
-                         f"and {what} is not supported yet: use mode = \"voltage\" or leave "
-                         "split_decay out")
     if switch.topology == "full_bridge" and hold.fast_fraction > 0 and armature is not None:
         raise InputError(source, "hold.fast_fraction", f"mixed decay with {what} and [armature] on a "
                          "full bridge is not supported yet: leave it out (slow decay in the hold)")

@@ -420,13 +420,6 @@ def test_closed_loop_design_simulate_and_settled_sample(tmp_path, closed_loop):
     assert out.returncode == 0 and "closed_loop" in out.stderr, out.stderr
 
 
-def test_split_decay_with_current_mode_is_refused_in_one_line(tmp_path):
-    path = _drive_file(tmp_path, "wash-valve-split-24v", 600, 'mode = "current"', drop=("compensate",))
-    r = run_cli("design", str(path))
-    line = r.stderr.strip()
-    assert r.returncode == 2 and "\n" not in line and "freewheel.split_decay" in line, line
-
-
 def test_emulated_capture_of_the_closed_loop_checks(tmp_path, closed_loop):
     # the virtual device's samples (the loop settled at 24 V, 20 degC) checked against the
     # design: the check of tests/test_eddy_coil.py (pull-in, release, hold mean pass)

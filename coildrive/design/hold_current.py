@@ -666,9 +666,13 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
         from ..model.eddy_waveform import threshold_actuation
         from ..model.waveform import eddy_waveform
 
-        pieces = threshold_actuation(drive, lp, peak_time, hold_time, points, th.control,
-                                     th.lower_a, th.upper_a, th.off_time_s, th.delay_s)
-        return eddy_waveform(drive, lp, supply, pieces, peak_time, label)
+        fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") \
+            if split_decay(drive) else None
+        lead = drive.freewheel.bypass_lead if fast is not None else 0.0
+        pieces, last_on = threshold_actuation(drive, lp, peak_time, hold_time, points, th.control,
+                                              th.lower_a, th.upper_a, th.off_time_s, th.delay_s,
+                                              fast, lead)
+        return eddy_waveform(drive, lp, supply, pieces, peak_time, label, fast, lead, last_on)
     v, r_on, r_off, v_off = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off))
     ind = one_point(lp.inductance)   # H, or a saturating coil's curve (exact segments)
     a = v / r_on  # the current the on-time rises toward, A

@@ -185,6 +185,35 @@ def _peak(drive: Drive, lp: Loop, peak_time: float, big: int):
     return pt, peak_end, [tp], [pt.on_terminal(mp)], [mp], [np.ones_like(tp)]
 
 
+def _release_samples(pt: _Point, release: Loop | None, lead: float, t_cut: float, i_cut: float,
+                     m_last: float, t_last: float, big: int, pieces) -> float:
+    """Append the release from the final turn-off at ``t_cut`` s, ``i_cut`` A of
+    magnetising current, to the sample pieces ``(time, magnetising, terminal, switch_on,
+    fast)``; the last on-time lasted ``t_last`` s from ``m_last`` A. ``release``: split
+    decay's fast loop (``None``: ``pt``'s own path), its bypass opening ``lead`` s before
+    the turn-off (a sample there inside the last on-time) or ``-lead`` s after it (the
+    slow path until then). Returns the time the terminal current reaches zero, s."""
+    ts, ms, cs, ons, fasts = pieces
+    if release is not None and 0.0 < lead < t_last:   # the bypass opens in the last on-time
+        m_open = pt.on.current(m_last, t_last - lead)
+        ts.append(np.array([t_cut - lead]))
+        ms.append(np.array([m_open]))
+        cs.append(np.atleast_1d(pt.on_terminal(m_open)))
+        ons.append(np.ones(1))
+        fasts.append(np.zeros(1))
+    t_rel, i_rel, t_stop = t_cut, i_cut, None
+    if release is not None and lead < 0:   # a late bypass: the slow path for -lead s first
+        t_stop = min(-lead, float(pt.conduction(i_cut)))   # the slow path may block in the lag
+        t_rel, i_rel = _freewheel_samples(pt, t_cut, i_cut, t_stop, -lead, big, pieces)
+    pt = pt if release is None else _Point(release, i_rel)
+    tz = float(pt.conduction(i_rel))
+    _freewheel_samples(pt, t_rel, i_rel, tz, max(pt.time_to(i_rel, TAIL_FRACTION * i_cut), tz, 0.0), big,
+                       pieces)
+    # the terminal current stops where the fast path stops conducting, or (a late bypass
+    # opening on a flux below the fast path's block current) where the slow path did
+    return t_rel + tz if tz > 0 or t_stop is None else t_cut + t_stop
+
+
 def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: float,
               hold_time: float, points: int, release: Loop | None = None, lead: float = 0.0):
     """The sample pieces of one actuation: ``(time, terminal current, magnetising
@@ -230,41 +259,28 @@ def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: 
     ons.append(on_flat)
     fasts.append(fast_flat)
     t_cut = peak_time + (n - 1) * period + t_on
-    i_cut = float(tops[-1])
-    if release is not None and 0.0 < lead < t_on:   # the bypass opens in the last on-time
-        m_open = pt.on.current(starts[-1], t_on - lead)
-        ts.append(np.array([t_cut - lead]))
-        ms.append(np.array([m_open]))
-        cs.append(np.atleast_1d(pt.on_terminal(m_open)))
-        ons.append(np.ones(1))
-        fasts.append(np.zeros(1))
-    t_rel, i_rel, t_stop = t_cut, i_cut, None
-    if release is not None and lead < 0:   # a late bypass: the slow path for -lead s first
-        t_stop = min(-lead, float(pt.conduction(i_cut)))   # the slow path may block in the lag
-        t_rel, i_rel = _freewheel_samples(pt, t_cut, i_cut, t_stop, -lead, big, (ts, ms, cs, ons, fasts))
-    pt = pt if release is None else _Point(release, i_rel)
-    tz = float(pt.conduction(i_rel))
-    _freewheel_samples(pt, t_rel, i_rel, tz, max(pt.time_to(i_rel, TAIL_FRACTION * i_cut), tz, 0.0), big,
-                       (ts, ms, cs, ons, fasts))
-    # the terminal current stops where the fast path stops conducting, or (a late bypass
-    # opening on a flux below the fast path's block current) where the slow path did
-    t_zero = t_rel + tz if tz > 0 or t_stop is None else t_cut + t_stop
+    t_zero = _release_samples(pt, release, lead, t_cut, float(tops[-1]), float(starts[-1]), t_on, big,
+                              (ts, ms, cs, ons, fasts))
     return ts, cs, ms, ons, fasts, t_cut, t_zero
 
 
 def threshold_actuation(drive: Drive, lp: Loop, peak_time: float, hold_time: float,
                         points: int, control: str, lower: float, upper: float,
-                        off_time: float, delay: float):
-    """The sample pieces of one actuation with a current-mode hold (the pieces and
-    returns of :func:`actuation`, no fast parts): the controller compares the SENSED (terminal) current
+                        off_time: float, delay: float, release: Loop | None = None,
+                        lead: float = 0.0):
+    """The sample pieces of one actuation with a current-mode hold and the last on-time's
+    length: ``(pieces, s)``, the pieces those of :func:`actuation` (no fast parts). The controller compares the SENSED (terminal) current
     with its thresholds -- hysteretic: off when it reaches ``upper`` A, on again when it
     falls to ``lower`` A; ``"off_time"``: off at ``upper`` A for ``off_time`` s -- each
     edge ``delay`` s late. A threshold is a magnetising current that depends on the
     loop that conducts (:func:`coildrive.model.current_mode.sensed_threshold`); the hold
     ends at the top of its last on-time after ``hold_time`` s. The terminal current
-    steps at every edge (two samples at the edge's instant)."""
+    steps at every edge (two samples at the edge's instant). ``release``/``lead``: split
+    decay's fast loop and bypass lead, as in :func:`actuation` (the hold's off-times
+    through ``lp``'s slow path, the release from the last turn-off through the fast one)."""
     big = 40 * points
     pt, peak_end, ts, cs, ms, ons = _peak(drive, lp, peak_time, big)
+    last = [peak_end, 0.0]   # the latest on segment's start (magnetising A) and length (s)
     fasts = [np.zeros_like(ts[0])]
     v, r_on = pt.v, pt.r_on
     m_hi = (r_on + pt.re) * upper / pt.re - v / pt.re
@@ -275,6 +291,7 @@ def threshold_actuation(drive: Drive, lp: Loop, peak_time: float, hold_time: flo
     frac = np.linspace(0.0, 1.0, points + 1)
 
     def on_for(t, m, dur):   # append an on segment of dur s from i_m = m A at t s
+        last[:] = [m, dur]
         tu = frac * dur
         mu = pt.on.current(m, tu)
         ts.append(t + tu)
@@ -302,7 +319,5 @@ def threshold_actuation(drive: Drive, lp: Loop, peak_time: float, hold_time: flo
             t, m = on_for(t, m, dur)
     if not regulated:   # the threshold is out of reach (or chatters): the switch stays on
         t, m = on_for(t, m, hold_time)
-    pieces = (ts, ms, cs, ons, fasts)
-    tz = float(pt.conduction(m))
-    _freewheel_samples(pt, t, m, tz, max(pt.time_to(m, TAIL_FRACTION * m), tz, 0.0), big, pieces)
-    return ts, cs, ms, ons, fasts, t, t + tz
+    t_zero = _release_samples(pt, release, lead, t, m, last[0], last[1], big, (ts, ms, cs, ons, fasts))
+    return (ts, cs, ms, ons, fasts, t, t_zero), last[1]
