@@ -216,22 +216,6 @@ def test_no_compiler_is_one_clear_line(tmp_path, firmware):
     assert r.stdout == ""
 
 
-def test_current_mode_with_an_eddy_term_is_refused_in_one_line(tmp_path):
-    # the plain Zener valve (no split decay, which a current-mode hold with an eddy term refuses)
-    text = as_edited(drive_path("zener-valve").read_text(),
-                     ('frequency = "25 kHz"', 'frequency = "25 kHz"\nmode = "current"\ncontrol = "hysteretic"'))
-    drive = tmp_path / "cm.toml"
-    drive.write_text(text.replace("[coil]\n", '[coil]\neddy_resistance = "20 kohm"\n', 1))
-    fw = tmp_path / "fw"
-    r = run_cli("firmware-driver", str(drive), "--out", str(fw))
-    assert r.returncode == 0, r.stderr
-    r = run_cli("emulate", str(drive), "--firmware", str(fw), "--duration", "1")
-    assert r.returncode == 2
-    assert r.stderr.strip() == (f"coildrive: {drive}: coil.eddy_resistance: firmware in the loop runs a "
-                                "current-mode hold without an eddy term (coil.eddy_resistance) for now: the "
-                                "comparator would see the terminal current's steps")
-
-
 LATCH = EXAMPLES / "locker-latch-12v.toml"
 
 

@@ -44,11 +44,13 @@ A full bridge's mixed-decay hold (``hold.fast_fraction``): each off-time decays 
 the fast path (all four open) up to the timer count the driver gives through its
 ``port_fast_end`` hook, then through the slow path.
 
-A current-mode hold (coil without ``[armature]`` or eddy term): the host port records the
+A current-mode hold (coil without ``[armature]``): the host port records the
 thresholds the driver arms and the off-time one-shot it starts; in the hold the device
 steps the comparator with the coil, event by event (:meth:`FirmwareDevice._step_current`),
 and calls the driver's threshold and off-timer handlers. The driver opens the switch in
-the tick that reports OFF (docs/firmware.md).
+the tick that reports OFF (docs/firmware.md). With an eddy term the state is the
+magnetising current (the segments of :mod:`coildrive.model.eddy`) and the comparator
+sees the terminal current, which steps at each edge by ``(V + V_off) / (R + R_e)``.
 """
 
 from __future__ import annotations
@@ -102,6 +104,31 @@ def load_library(path: Path) -> ctypes.CDLL:
         if fn is not None:
             fn.restype, fn.argtypes = res, args
     return lib
+
+
+def _terminal(i_m, lp, on: bool):
+    """The sensed (terminal) current A at the coil current ``i_m`` A in the loop ``lp``,
+    switch ``on`` or freewheeling: ``i_m`` itself, or with an eddy term
+    (:mod:`coildrive.model.eddy`) the Thevenin loop's, which steps at each edge by
+    ``(V + V_off) / (R + R_e)``; a freewheel that has blocked carries none."""
+    e = lp.inductance
+    if not isinstance(e, EddyCoil):
+        return i_m
+    if on:
+        return eddy.terminal(i_m, lp.v_on, lp.r_on, e.resistance)
+    return np.maximum(eddy.terminal(i_m, -lp.v_off, lp.r_off, e.resistance), 0.0)
+
+
+def _magnetising(i, lp, on: bool) -> float:
+    """The coil current (A; with an eddy term the magnetising current) at which the
+    sensed current is ``i`` A in the loop ``lp`` (switch ``on`` or freewheeling): the
+    inverse of :func:`_terminal` while the loop conducts."""
+    e = lp.inductance
+    if not isinstance(e, EddyCoil):
+        return i
+    v, r = (lp.v_on, lp.r_on) if on else (-lp.v_off, lp.r_off)
+    r_e = float(np.ravel(e.resistance)[0])
+    return float(np.ravel(((r + r_e) * i - v) / r_e)[0])
 
 
 class FirmwareDevice(LineOutput):
@@ -236,9 +263,6 @@ class FirmwareDevice(LineOutput):
         if design.hold.current_mode is not None and design.drive.armature is not None:
             raise ValueError("firmware in the loop runs a current-mode hold on a coil without [armature] for now "
                              "(the seated coil's thresholds after a moving pull-in are not stepped yet)")
-        if design.hold.current_mode is not None and design.drive.coil.eddy_resistance:
-            raise ValueError("firmware in the loop runs a current-mode hold without an eddy term "
-                             "(coil.eddy_resistance) for now: the comparator would see the terminal current's steps")
         if design.drive.armature is not None and design.drive.supply.droops:
             raise ValueError("firmware in the loop does not run a moving [armature] on a drooping bus "
                              "(supply.source_resistance) yet: emulate it without --firmware (the model's device)")
@@ -576,21 +600,29 @@ class FirmwareDevice(LineOutput):
                     decay_current(dt, i_seg, lp.r_off, lp.v_off, lp.inductance)
                 return np.zeros_like(c) if self.options.fault == "open" else c
 
-            def seg(x, coil=coil, on=on):      # what the sense resistor carries
+            def seg(x, coil=coil, on=on, lp=lp):   # what the sense resistor carries
                 c = coil(x)
-                return c if on or not self.sense_in_switch else np.zeros_like(c)
+                if not on and self.sense_in_switch:
+                    return np.zeros_like(c)
+                return _terminal(c, lp, on)
 
             armed = int(self.lib.fil_threshold())
             if self._spent is not None and self._spent != (on, armed):
                 self._spent = None         # a new segment or a new arming: the comparator can trip again
             if self._trip is None and self._spent is None and armed >> 31:
                 lo, hi = (armed & 0xFFFF) * self._apc, (armed >> 16 & 0x7FFF) * self._apc
+                # the thresholds compare the sensed current: with an eddy term the
+                # magnetising current where the conducting loop's terminal current is there
+                m_hi, m_lo = _magnetising(hi, lp, True), _magnetising(lo, lp, False)
                 if on:
-                    dt = 0.0 if i >= hi else float(rise_time(hi, i, lp.v_on, lp.r_on, ind))
+                    dt = 0.0 if i >= m_hi else float(rise_time(m_hi, i, lp.v_on, lp.r_on, ind))
                     if math.isfinite(dt):
                         self._trip = (t + dt + th.delay_s, True)
-                elif th.control == "hysteretic" and i > lo:
-                    self._trip = (t + float(decay_time(lo, i, lp.r_off, lp.v_off, ind)) + th.delay_s, False)
+                elif th.control == "hysteretic" and i > m_lo:
+                    self._trip = (t + float(decay_time(m_lo, i, lp.r_off, lp.v_off, ind)) + th.delay_s, False)
+                elif th.control == "hysteretic" and isinstance(ind, EddyCoil):
+                    # the turn-off's step took the sensed current below the lower threshold
+                    self._trip = (t + th.delay_s, False)
             times = [(end, "end")] + [(x, "tick") for x in ticks if x >= t]
             if not converted:
                 times.append((conv, "conversion"))
