@@ -103,3 +103,58 @@ def test_no_eddy_term_is_the_plain_boost_to_the_bit():
     t = 2e-4
     assert boost_model.state(t, plain) == boost_model.state(t, boost_model.boost(V_B, C_B, R_ON + R_B, L_COIL))
     assert float(boost_model.current(t, plain, sensed=True)) == float(boost_model.state(t, plain)[0])
+
+
+@pytest.fixture(scope="module")
+def eddy_example(tmp_path_factory):
+    """The boosted example with an invented 1 kohm eddy resistance (a laminated core)."""
+    from test_boost import _variant
+
+    return _variant(tmp_path_factory.mktemp("eddy"), "eddy", "[coil]", '[coil]\neddy_resistance = "1 kohm"')
+
+
+def test_design_simulate_and_emulate_end_to_end(tmp_path, eddy_example):
+    import json
+    import sys
+    from pathlib import Path
+
+    import numpy as np
+    from conftest import run_cli
+
+    out = run_cli("design", eddy_example, "--json")
+    assert out.returncode == 0, out.stderr
+    d = json.loads(out.stdout)
+    b, p = d["boost"], d["pull_in"]
+    # hand-worked: 1.3 x 0.9 A + the eddy share's bound 48 V x 1.05 / 1 kohm = 1.17 + 0.0504 A
+    assert b["threshold_a"] == pytest.approx(1.2204)
+    # the flux's current at the shortest peak (the terminal current's trip) carries the force
+    assert p["shortest_peak_current_a"] >= p["force_current_a"]
+    assert {c["name"]: c["ok"] for c in d["checks"]}["pull_in_force"]
+    sim = run_cli("simulate", eddy_example, "--supply", "12", "--coil-temp", "40", "--hold-time", "1 ms",
+                  "--csv", str(tmp_path / "s.csv"))
+    assert sim.returncode == 0, sim.stderr
+    rows = np.genfromtxt(tmp_path / "s.csv", delimiter=",", names=True)
+    assert rows["boost_v"][0] == pytest.approx(48.0)
+    # the switch-on step V_b / (R + R_e) of the terminal current (coildrive/model/eddy.py), the
+    # loop R between the 6 ohm coil's and 10 ohm
+    assert 48.0 / (1000.0 + 10.0) < rows["current_a"][0] < 48.0 / (1000.0 + 6.0)
+    peak = rows["time_s"] <= float(sim.stderr.split("peak ")[1].split(" ms")[0]) * 1e-3 * 0.999
+    code = int(round(b["threshold_code"]))
+    trip = code * 3.3 / 4096 / 2.0      # the code's current with a nominal chain (0.1 ohm x 20), A
+    assert rows["current_a"][peak][-1] < trip <= rows["current_a"][~peak][0] + 1e-4
+    assert np.all(rows["magnetising_current_a"][peak] < rows["current_a"][peak]), "the sense leads the flux"
+
+    sys.path.insert(0, str(Path(__file__).parent))
+    from test_emulator_device import capture_of, run as run_device
+
+    from coildrive.bench.check import check_capture
+    from coildrive.bench.device import DeviceOptions, VirtualDevice
+    from coildrive.config import load_drive
+    from coildrive.design import design
+
+    des = design(load_drive(Path(eddy_example)))
+    dev = VirtualDevice(des.drive, DeviceOptions(noise_codes=1.0, seed=3), design=des)
+    assert dev.peak_time < des.pull_in.peak_time_s, "ends at the threshold, before the time-out"
+    msgs, _ = run_device(dev, 0.05 + 2 * dev.period, step=0.05)
+    report = check_capture(capture_of(msgs, tmp_path / "c.cdcap"), des)
+    assert report.ok, [(i.name, i.status, i.detail) for i in report.items if i.status == "FAIL"]

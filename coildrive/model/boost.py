@@ -139,6 +139,8 @@ def _eddy_state(t, b: Boost, i0=0.0) -> tuple[np.ndarray, np.ndarray]:
 def terminal(i, v, b: Boost) -> np.ndarray:
     """The coil's terminal current (A) at magnetising current ``i`` A and boost ``v`` V:
     ``k (i + v/R_e)`` (``i`` itself without an eddy term)."""
+    if not b.eddy:
+        return np.asarray(i, float)
     return b.k * (np.asarray(i, float) + np.asarray(b.g_e, float) * np.asarray(v, float))
 
 
@@ -223,6 +225,16 @@ def square_integral(t, b: Boost) -> np.ndarray:
         return _eddy_square_integral(t, b)
     i = state(t, b)[0]
     return (energy_drawn(t, b) - 0.5 * b.l * i**2) / b.r
+
+
+def eddy_loss(t, b: Boost) -> np.ndarray:
+    """J the eddy resistance takes in the first ``t`` s from rest (0 without an eddy
+    term), by the energy balance: the boost's energy less the field's ``1/2 L i_m^2`` and
+    the loop's ``R int i^2 dt`` (the terminal current through the loop's copper)."""
+    if not b.eddy:
+        return np.zeros(np.broadcast(np.asarray(t, float), b.v_b).shape)
+    i_m = state(t, b)[0]
+    return energy_drawn(t, b) - 0.5 * b.l * i_m**2 - b.r * square_integral(t, b)
 
 
 def _eddy_square_integral(t, b: Boost) -> np.ndarray:
