@@ -158,3 +158,4 @@ def test_design_simulate_and_emulate_end_to_end(tmp_path, eddy_example):
     msgs, _ = run_device(dev, 0.05 + 2 * dev.period, step=0.05)
     report = check_capture(capture_of(msgs, tmp_path / "c.cdcap"), des)
     assert report.ok, [(i.name, i.status, i.detail) for i in report.items if i.status == "FAIL"]
+
