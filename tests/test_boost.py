@@ -259,7 +259,6 @@ REFUSALS = [
     ("settle", "margin = 1.5", 'margin = 1.5\nsettle_time = "1 ms"', None, "pull_in.settle_time"),
     ("low-boost", 'boost = "48 V"', 'boost = "16.5 V"', None, "supply.boost"),
     ("no-power", 'boost_power = "5 W"', "", None, "supply.boost_power"),
-    ("eddy", "[coil]", '[coil]\neddy_resistance = "200 ohm"', None, "coil.eddy_resistance"),
 ]
 
 

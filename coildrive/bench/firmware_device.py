@@ -219,8 +219,11 @@ class FirmwareDevice(LineOutput):
         self._boost = None
         if design.boost is not None:
             s, on = drive.supply, self._loops["hold"]
+            ind, r_e = on.inductance, None
+            if isinstance(ind, EddyCoil):    # the magnetising branch and the eddy resistance
+                ind, r_e = ind.magnetising, ind.resistance
             self._boost = boost_model.boost(s.boost, s.boost_capacitance, on.r_on + s.boost_resistance,
-                                            on.inductance)
+                                            ind, r_e)
             self._boost_v, self._boost_t = float(s.boost), 0.0
         #: a current-mode hold: the design's thresholds (the comparator's delay, the off
         #: timer's prescaler), the off-time one-shot's expiry (device s) and a comparator
@@ -445,9 +448,11 @@ class FirmwareDevice(LineOutput):
         boost = None
         if boosting:
             b = self._boost
-            boost = boost_model.Boost(np.asarray(self.boost_voltage(t0)), b.c, b.r, b.l)
+            boost = boost_model.Boost(np.asarray(self.boost_voltage(t0)), b.c, b.r, b.l, b.g_e)
         #: the time the driver turns the boost off within this period, s
         boost_cut: list[float] = []
+        #: a peak that starts at this period's conversion: (its time s, current A, boost)
+        late = None
 
         def on_current(x):
             if flight is not None:           # the armature model while the switch stays on
@@ -475,7 +480,17 @@ class FirmwareDevice(LineOutput):
                 fast = self._loops["release"]
                 off = np.where(np.asarray(x) <= fast_t,
                                np.maximum(eddy.terminal(i_m, -fast.v_off, fast.r_off, e.resistance), 0.0), off)
-            return np.where(np.asarray(x) <= on_end, eddy.terminal(i_m, on.v_on, on.r_on, e.resistance), off)
+            x = np.asarray(x, float)
+            on_term = eddy.terminal(i_m, on.v_on, on.r_on, e.resistance)
+            if boost is not None:            # fed from the boost capacitor until its switch opens
+                end = boost_cut[0] if boost_cut else np.inf
+                v_c = boost_model.state(np.minimum(x, end) - t0, boost, i0)[1]
+                on_term = np.where(x <= end, boost_model.terminal(i_m, v_c, boost), on_term)
+            term = np.where(x <= on_end, on_term, off)
+            if late is not None:             # a peak from this period's conversion on
+                v_c = boost_model.state(np.maximum(x - late[0], 0.0), late[2], late[1])[1]
+                term = np.where(x >= late[0], boost_model.terminal(i_m, v_c, late[2]), term)
+            return term
 
         #: a full bridge's slow decay that the driver ends at the conversion (all four open):
         #: the time it does, s, from which the current decays fast
@@ -537,7 +552,8 @@ class FirmwareDevice(LineOutput):
             # the peak's start: the boost and the switch go on at once in this conversion
             # (its ON event's moment), the capacitor from where its recharge has it
             b = self._boost
-            late = (s, float(current(s)), boost_model.Boost(np.asarray(self.boost_voltage(s)), b.c, b.r, b.l))
+            late = (s, float(current(s)), boost_model.Boost(np.asarray(self.boost_voltage(s)), b.c, b.r, b.l,
+                                                            b.g_e))
             off_current = current
 
             def current(x):                 # noqa: F811 -- this period's current from here on

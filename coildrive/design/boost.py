@@ -24,17 +24,27 @@ import numpy as np
 from ..config import Drive
 from ..model import boost as model
 from ..model.circuit import loop
+from ..model.eddy import EddyCoil
 from .corners import CornerGrid
 from .envelope import reading_factors
 from .result import BoostResult, Check
 
 
+def at_boost(drive: Drive, v_b, c, r_on, inductance) -> model.Boost:
+    """The boost of ``v_b`` V on ``c`` F feeding the on-loop ``r_on`` ohm (the boost path's
+    own resistance added) and the coil ``inductance`` (H, or an
+    :class:`~coildrive.model.eddy.EddyCoil`: its magnetising branch and eddy resistance)."""
+    r_e = None
+    if isinstance(inductance, EddyCoil):
+        inductance, r_e = inductance.magnetising, inductance.resistance
+    return model.boost(v_b, c, r_on + drive.supply.boost_resistance, inductance, r_e)
+
+
 def _boost(drive: Drive, lp, inductance, high: bool) -> model.Boost:
     s = drive.supply
     sign = 1.0 if high else -1.0
-    return model.boost(s.boost * (1.0 + sign * s.boost_tolerance),
-                       s.boost_capacitance * (1.0 + sign * s.boost_capacitance_tolerance),
-                       lp.r_on + s.boost_resistance, inductance)
+    return at_boost(drive, s.boost * (1.0 + sign * s.boost_tolerance),
+                    s.boost_capacitance * (1.0 + sign * s.boost_capacitance_tolerance), lp.r_on, inductance)
 
 
 def rise_time(drive: Drive, lp, i_target, inductance) -> np.ndarray:
@@ -53,12 +63,20 @@ def steady_current(drive: Drive, lp) -> np.ndarray:
 
 
 def threshold(drive: Drive) -> tuple[float, int, float]:
-    """``(threshold A, ADC code, highest true current at which that code trips A)``."""
+    """``(threshold A, ADC code, highest true current at which that code trips A)``.
+
+    With an eddy term the sense sees the terminal current ``k (i_m + v_C/R_e)``, which
+    leads the magnetising current (the flux, the force): the threshold is raised by the
+    eddy share's bound ``V_b,max/R_e`` (``k <= 1``, ``v_C <= V_b,max``), so the flux's
+    current has reached ``current_margin`` x the pull-in current wherever it trips."""
     b = drive.board
     vpa = b.sense.resistance * b.sense.gain
     lsb = b.adc.reference / 2**b.adc.bits
     low, high = reading_factors(drive)
     i_th = drive.pull_in.current_margin * drive.pull_in.current
+    if drive.coil.eddy_resistance:
+        s = drive.supply
+        i_th += s.boost * (1.0 + s.boost_tolerance) / drive.coil.eddy_resistance
     code = math.ceil(i_th * vpa * high / lsb - 1e-9)
     return i_th, code, code * lsb / (vpa * low)
 
@@ -77,8 +95,8 @@ def firmware_peak(design, supply: float, coil_temp: float, r_factor: float = 1.0
     drive = design.drive
     s = drive.supply
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
-    b = model.boost(s.boost, s.boost_capacitance, lp.r_on + s.boost_resistance, lp.inductance)
-    t = float(model.threshold_time(nominal_trip(drive), b))
+    b = at_boost(drive, s.boost, s.boost_capacitance, lp.r_on, lp.inductance)
+    t = float(model.threshold_time(nominal_trip(drive), b, sensed=True))
     return min(t, design.pull_in.peak_time_s or 0.0)
 
 
@@ -93,8 +111,9 @@ def peak_in_force(design, supply: float, coil_temp: float, r_factor: float = 1.0
 
 def _seen(drive: Drive, b: model.Boost) -> np.ndarray:
     """When the firmware sees the threshold at the latest (s; ``inf`` where never): the
-    highest trip current (the chain reading low), one conversion late."""
-    return model.threshold_time(threshold(drive)[2], b) + 1.0 / drive.board.adc.sample_rate
+    highest trip current (the chain reading low), one conversion late. (With an eddy
+    term the sense sees the terminal current, which leads the magnetising current.)"""
+    return model.threshold_time(threshold(drive)[2], b, sensed=True) + 1.0 / drive.board.adc.sample_rate
 
 
 def slowest_peak(drive: Drive, lp) -> np.ndarray:
@@ -104,17 +123,27 @@ def slowest_peak(drive: Drive, lp) -> np.ndarray:
     return _seen(drive, _boost(drive, lp, lp.inductance, False))
 
 
+def earliest_trip(drive: Drive, lp) -> np.ndarray:
+    """The shortest boosted peak at each point on the pull-in side (s): the boost at its
+    lowest until the terminal current reaches the threshold (where a chain reading high
+    trips). With an eddy term the terminal current leads the magnetising current, so the
+    flux's current at the end of the peak is below the threshold (the ``pull_in_force``
+    check takes it there)."""
+    return model.threshold_time(threshold(drive)[0], _boost(drive, lp, lp.inductance, False), sensed=True)
+
+
 def peak_heat(drive: Drive, lp, peak_time) -> np.ndarray:
     """J the coil's copper takes in one boosted peak at the points of ``lp``: ``R_coil int
     i^2 dt`` (:func:`coildrive.model.boost.square_integral`) from switch-on until the
     firmware sees the threshold at the latest, or ``peak_time`` s (the time-out) if sooner
     -- from the boost at its lowest (the longest peak) and at its highest (the most
-    current), the larger."""
+    current), the larger. With an eddy term the core's eddy loss heats the coil too
+    (:func:`coildrive.model.boost.eddy_loss`)."""
     heat = np.zeros(np.shape(lp.r_coil))
     for high in (False, True):
         b = _boost(drive, lp, lp.inductance, high)
         t = np.minimum(_seen(drive, b), peak_time)
-        heat = np.maximum(heat, lp.r_coil * model.square_integral(t, b))
+        heat = np.maximum(heat, lp.r_coil * model.square_integral(t, b) + model.eddy_loss(t, b))
     return heat
 
 
@@ -132,18 +161,19 @@ def sampled_pull_in(drive: Drive, res, v_factor, c_factor):
     ``boost_capacitance_tolerance``)."""
     s = drive.supply
     lp = res.loop
-    b = model.boost(s.boost * np.asarray(v_factor, float), s.boost_capacitance * np.asarray(c_factor, float),
-                    lp.r_on + s.boost_resistance, lp.inductance)
+    b = at_boost(drive, s.boost * np.asarray(v_factor, float), s.boost_capacitance * np.asarray(c_factor, float),
+                 lp.r_on, lp.inductance)
     return dataclasses.replace(res, pull_in_time=model.threshold_time(drive.pull_in.current, b))
 
 
 def end_current(drive: Drive, lp) -> np.ndarray:
     """The highest current at the end of the peak (A) at each point: the boost at its
-    highest, up to the highest trip current, one conversion late."""
+    highest, up to the highest trip current, one conversion late (the terminal current:
+    what the switch interrupts)."""
     b = _boost(drive, lp, lp.inductance, True)
     t = _seen(drive, b)
-    return np.where(np.isfinite(t), model.state(np.where(np.isfinite(t), t, 0.0), b)[0],
-                    model.highest_current(b))
+    return np.where(np.isfinite(t), model.current(np.where(np.isfinite(t), t, 0.0), b, sensed=True),
+                    model.highest_current(b, sensed=True))
 
 
 def _release_loop(res):
@@ -210,10 +240,10 @@ def boost_result(drive: Drive, grid: CornerGrid, res, rate: float) -> BoostResul
     t_slow = _seen(drive, slow)            # the longest peak at each point
     finite = np.isfinite(t_slow)
     reached = bool(np.all(finite))
-    reachable = model.highest_current(slow)
+    reachable = model.highest_current(slow, sensed=True)
     # the worst corner: the longest peak, or where the boost drives the least
     k_slow = int(np.argmax(t_slow) if reached else np.argmin(reachable))
-    t_fast = model.threshold_time(i_th, fast)
+    t_fast = model.threshold_time(i_th, fast, sensed=True)
     k_fast = int(np.argmin(t_fast))
     # slow side: the capacitor at the end of the peak (its lowest, while the boost alone
     # feeds the coil)
@@ -223,8 +253,9 @@ def boost_result(drive: Drive, grid: CornerGrid, res, rate: float) -> BoostResul
     k_low = int(np.argmin(headroom))
     # fast side: the most current, energy and switch voltage
     t_end = _seen(drive, fast)
-    t_end = np.where(np.isfinite(t_end), t_end, model.peak_time(fast))
-    i_end, v_end = model.state(t_end, fast)
+    t_end = np.where(np.isfinite(t_end), t_end, model.peak_time(fast, sensed=True))
+    i_m_end, v_end = model.state(t_end, fast)
+    i_end = model.terminal(i_m_end, v_end, fast)
     energy = np.maximum(model.energy_drawn(t_end, fast), model.energy_drawn(t_low, slow))
     k_e, k_i = int(np.argmax(energy)), int(np.argmax(i_end))
     v_top = s.boost * (1.0 + s.boost_tolerance)

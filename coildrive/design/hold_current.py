@@ -672,7 +672,9 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
         pieces, last_on = threshold_actuation(drive, lp, peak_time, hold_time, points, th.control,
                                               th.lower_a, th.upper_a, th.off_time_s, th.delay_s,
                                               fast, lead)
-        return eddy_waveform(drive, lp, supply, pieces, peak_time, label, fast, lead, last_on)
+        return boost_columns(drive, eddy_waveform(drive, lp, supply, pieces, peak_time, label, fast, lead,
+                                                  last_on),
+                             supply, peak_time, float(np.ravel(lp.r_on)[0]), lp.inductance[...])
     v, r_on, r_off, v_off = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off))
     ind = one_point(lp.inductance)   # H, or a saturating coil's curve (exact segments)
     a = v / r_on  # the current the on-time rises toward, A

@@ -34,7 +34,7 @@ from .corners import CornerGrid
 from .evaluate import PointResults
 from .figures import worst
 from .result import PeakTable
-from .boost import slowest_peak
+from .boost import earliest_trip, slowest_peak
 from .supply import rise_current, rise_time, steady_current
 
 
@@ -147,6 +147,8 @@ def plan_peak(drive: Drive, grid: CornerGrid, first: PointResults, entry_results
         short = long_ = np.zeros(n)
     elif drive.supply.boosted:   # each point's peak ends at the threshold, at the latest when seen
         short, long_ = np.asarray(tf_all, float), np.asarray(t_end, float)
+        if drive.coil.eddy_resistance:   # the sense trips on the terminal current, ahead of the flux's
+            short = earliest_trip(drive, first.loop)
     elif table is not None:
         ent = np.asarray(table.peak_ticks)
         codes = np.asarray(table.adc_codes)

@@ -220,11 +220,16 @@ def _bridge_boost_columns(drive: Drive, w: "Waveform", peak_time: float) -> "Wav
     return dataclasses.replace(w, coil_voltage=coil, switch_voltage=v_sw, switches=switches)
 
 
-def nominal_boost(drive: Drive, r_on: float, ind: float) -> boost_model.Boost:
+def nominal_boost(drive: Drive, r_on: float, ind) -> boost_model.Boost:
     """The boost at its nominal voltage and capacitance feeding the on-loop ``r_on`` ohm
-    (with the boost path's own resistance), ``ind`` H."""
+    (with the boost path's own resistance), ``ind`` H (or an
+    :class:`~coildrive.model.eddy.EddyCoil` of one point: its magnetising branch and eddy
+    resistance)."""
     s = drive.supply
-    return boost_model.boost(s.boost, s.boost_capacitance, r_on + s.boost_resistance, ind)
+    r_e = None
+    if isinstance(ind, EddyCoil):
+        ind, r_e = float(np.ravel(ind.magnetising)[0]), float(np.ravel(ind.resistance)[0])
+    return boost_model.boost(s.boost, s.boost_capacitance, r_on + s.boost_resistance, ind, r_e)
 
 
 def _mixed_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_time: float,
@@ -306,8 +311,8 @@ def _eddy_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: flo
     bridged = full_bridge(drive)
     lead = drive.freewheel.bypass_lead if fast is not None and not bridged else 0.0
     pieces = eddy_samples(drive, lp, peak_time, duty, frequency, hold_time, points, fast, lead)
-    return eddy_waveform(drive, lp, supply, pieces, peak_time, label, fast, lead,
-                         duty / frequency)
+    w = eddy_waveform(drive, lp, supply, pieces, peak_time, label, fast, lead, duty / frequency)
+    return boost_columns(drive, w, supply, peak_time, float(np.ravel(lp.r_on)[0]), lp.inductance[...])
 
 
 def eddy_waveform(drive: Drive, lp, supply: float, pieces, peak_time: float, label: str,
