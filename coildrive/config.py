@@ -1439,8 +1439,9 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     """What the drooping bus (``supply.source_resistance``) is modelled with: a linear coil
     (or an eddy-current term, or a flux-linkage curve, not both), one switch (low or high
     side) or a full bridge (a voltage-mode, slow-decay, open-loop hold; its fast decay
-    into the bus is :mod:`coildrive.model.bus_decay`, on a supply that cannot sink with
-    the feed blocking). Any hold (the droop is the peak's; a regulated hold takes it out of
+    into the bus is :mod:`coildrive.model.bus_decay`, with a curve
+    :mod:`coildrive.model.flux_bus_decay`, on a supply that cannot sink with the feed
+    blocking). Any hold (the droop is the peak's; a regulated hold takes it out of
     the hold) and any freewheel path (a clamp's release, which draws from the bus, is
     computed on the undrooped bus: the safe side). A moving armature: a linear coil or its
     open and seated curves, one switch, a voltage-mode open-loop hold (the pull-in run
@@ -1452,8 +1453,6 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     if coil.flux_current and coil.eddy_resistance:
         key = "coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance"
         why = "a flux-linkage curve and an eddy-current term together"
-    elif coil.flux_current and switch.topology == "full_bridge":
-        key, why = "coil.flux_current", "a flux-linkage curve on a full bridge"
     elif switch.topology == "full_bridge" and hold.fast_fraction > 0:
         key, why = "hold.fast_fraction", "a full bridge's mixed-decay hold"
     elif switch.topology == "full_bridge" and hold.mode != "voltage":

@@ -37,6 +37,17 @@ from test_reference_ngspice_bridge import (EDGE, I_DROP, L_COIL, R_COIL, R_SENSE
 CASES = [(1.5, 100e-6, True), (0.5, 4.7e-3, True), (1.5, 100e-6, False)]
 
 
+def droop_netlist(title, gates, tend, step, measures, r_s, c, sink) -> str:
+    """The element-level bridge of tests/test_reference_ngspice_bridge.py with the feed
+    resistor ``RSRC`` (``r_s`` ohm; before the ideal feed diode when not ``sink``)."""
+    text = _netlist(title, gates, tend, step, measures, capacitance=c, sink=sink)
+    if sink:
+        return text.replace("VFEED sup bus DC 0", f"VFEED sup src DC 0\nRSRC src bus {r_s!r}")
+    feed = knee("BFEED", "sup", "bus", 0.0)
+    assert feed in text
+    return text.replace(feed, f"RSRC sup src {r_s!r}\n" + knee("BFEED", "src", "bus", 0.0))
+
+
 @pytest.mark.ngspice
 @pytest.mark.parametrize("r_s, c, sink", CASES, ids=["100uF", "4700uF", "100uF-no-sink"])
 def test_bridge_peak_and_release_on_the_drooping_bus_match_ngspice(tmp_path, r_s, c, sink):
@@ -59,14 +70,7 @@ def test_bridge_peak_and_release_on_the_drooping_bus_match_ngspice(tmp_path, r_s
                 f"meas tran tdrop WHEN i(VM)={I_DROP!r} FALL=1", "meas tran tzero WHEN i(VM)=1e-6 FALL=1",
                 f"meas tran vmax MAX v(bus) {after}", f"meas tran vq1max MAX vq1 {after}",
                 f"meas tran vq4max MAX vq4 {after}"]
-    text = _netlist("bridge-droop", gates, tend, step, measures, capacitance=c, sink=sink)
-    if sink:
-        text = text.replace("VFEED sup bus DC 0", f"VFEED sup src DC 0\nRSRC src bus {r_s!r}")
-    else:
-        feed = knee("BFEED", "sup", "bus", 0.0)
-        assert feed in text
-        text = text.replace(feed, f"RSRC sup src {r_s!r}\n" + knee("BFEED", "src", "bus", 0.0))
-    res = run(tmp_path, "bridge-droop", text)
+    res = run(tmp_path, "bridge-droop", droop_netlist("bridge-droop", gates, tend, step, measures, r_s, c, sink))
     print(f"bridge on a drooping bus ({r_s} ohm, {c * 1e6:g} uF) vs ngspice: i_off {i_on:.6e}/{res['ioff']:.6e} A, "
           f"lowest bus {v_low:.6e}/{res['vlow']:.6e} V, drop {float(d.drop_time):.6e}/{res['tdrop'] - t_off:.6e} s, "
           f"zero {t_zero:.6e}/{res['tzero'] - t_off:.6e} s, highest bus {float(d.bus_max):.6e}/{res['vmax']:.6e} V")

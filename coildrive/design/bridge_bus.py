@@ -12,12 +12,13 @@ import math
 import numpy as np
 
 from ..config import Drive
-from ..model import bus_decay
-from ..model import supply as bus_model
+from ..model import bus_decay, flux_bus_decay
 from ..model.circuit import full_bridge
+from ..model.flux import FluxCoil
+from ..model.supply import bus_floor
 from .figures import worst
 from .result import Check, ReleaseResult, SupplyResult
-from .supply import bus_at
+from .supply import bus_at, model_of
 from .turnoff import event_currents, release_loop
 
 #: Starting buses tried for a bridge's fast decay, evenly over the range the bus can be in
@@ -33,11 +34,11 @@ def bus_range(drive: Drive, res, peak_time, peak_end) -> tuple[np.ndarray, np.nd
     of the hold's off-times draws nothing from the bus); and never below ``-2 V_d``."""
     lp = res.loop
     b = bus_at(drive, lp, lp.inductance)
-    v_peak, _ = bus_model.lowest_bus(np.broadcast_to(peak_time, lp.v_on.shape), b)
+    v_peak, _ = model_of(b).lowest_bus(np.broadcast_to(peak_time, lp.v_on.shape), b)
     end = np.broadcast_to(np.asarray(peak_end, float), lp.v_on.shape)
     top = np.maximum(np.where(np.isfinite(end), end, 0.0),
                      np.where(np.isfinite(res.hold.i_max), res.hold.i_max, 0.0))
-    floor = bus_model.bus_floor(lp.v_on, drive.supply.source_resistance, top)
+    floor = bus_floor(lp.v_on, drive.supply.source_resistance, top)
     # never below -2 V_d: the bridge's own body diodes (Q2 then Q1) clamp the bus there
     clamp = -2.0 * np.asarray(release_loop(res).diode(drive), float)
     return np.maximum(np.minimum(v_peak, floor), clamp), np.asarray(lp.v_on, float)
@@ -51,11 +52,18 @@ def drooped(drive: Drive) -> bool:
 def decays(drive: Drive, res, i0, peak_time, peak_end) -> list[bus_decay.FastDecay]:
     """The fast decay of ``i0`` A at the points of ``res`` from each of
     :data:`BRIDGE_STARTS` starting buses over :func:`bus_range` (a supply that cannot
-    sink: :func:`coildrive.model.bus_decay.decay_no_sink`)."""
+    sink: :func:`coildrive.model.bus_decay.decay_no_sink`; a flux-linkage curve:
+    :mod:`coildrive.model.flux_bus_decay`, stepped)."""
     s = drive.supply
     lp = release_loop(res)
     lo, hi = bus_range(drive, res, peak_time, peak_end)
     starts = [lo + (hi - lo) * k / (BRIDGE_STARTS - 1) for k in range(BRIDGE_STARTS)]
+    if isinstance(lp.inductance, FluxCoil):   # stepped: every start in one run
+        fast = flux_bus_decay.decay if s.sink else flux_bus_decay.decay_no_sink
+        d = fast(i0, np.stack(np.broadcast_arrays(*starts)), drive.release.current, lp.v_on, s.source_resistance,
+                 s.capacitance, lp.r_off, lp.inductance, lp.diode(drive))
+        return [bus_decay.FastDecay(*(getattr(d, f.name)[k] for f in dataclasses.fields(d)))
+                for k in range(BRIDGE_STARTS)]
     fast = bus_decay.decay if s.sink else bus_decay.decay_no_sink
     return [fast(i0, v0, drive.release.current, lp.v_on, s.source_resistance,
                  s.capacitance, lp.r_off, lp.inductance, lp.diode(drive)) for v0 in starts]

@@ -181,11 +181,13 @@ def pump_up(i0, v1, capacitance, r_off, inductance, v_diode) -> PumpUp:
 PUMP_STEPS = 400
 
 
-def _flux_pump_up(i0, v1, capacitance, r_off, coil: FluxCoil, v_diode, steps: int = PUMP_STEPS) -> PumpUp:
+def _flux_pump_up(i0, v1, capacitance, r_off, coil: FluxCoil, v_diode, steps: int = PUMP_STEPS,
+                  i_end=0.0) -> PumpUp:
     """:func:`pump_up` of a saturating coil: ``dpsi/dt = -(v + 2 V_d + R i)`` and
     ``C dv/dt = i``. The current falls monotonically (the loop's voltage always opposes
     it), so the current itself is the independent variable over the same interval
-    ``i0 -> 0`` at every point:
+    ``i0 -> 0`` at every point (``i0 -> i_end`` A, at or below ``i0``, when given: the
+    state when the current has fallen that far):
 
         dv/di = -i L_d(i) / (C (v + 2 V_d + R i)),    dt/di = -L_d(i) / (v + 2 V_d + R i)
 
@@ -198,10 +200,10 @@ def _flux_pump_up(i0, v1, capacitance, r_off, coil: FluxCoil, v_diode, steps: in
     400 steps within 1e-6 of 8,000 (tests/test_flux_bridge.py); a straight-line curve
     gives the series RLC's closed form above to 1e-12. ngspice with a flux-controlled
     inductor checks it in tests/test_reference_ngspice_bridge.py."""
-    i0, v1, c, r, vd, s = np.broadcast_arrays(*(np.asarray(x, float) for x in
-                                                (i0, v1, capacitance, r_off, v_diode, coil.scale)))
+    i0, v1, c, r, vd, s, i_end = np.broadcast_arrays(*(np.asarray(x, float) for x in
+                                                       (i0, v1, capacitance, r_off, v_diode, coil.scale, i_end)))
     curve = coil.curve
-    h = i0 / steps   # the current falls by h a step
+    h = (i0 - i_end) / steps   # the current falls by h a step
 
     def slopes(i, v):   # (dv, dt) per unit of falling current
         ld = s * curve.incremental(i)
@@ -215,7 +217,7 @@ def _flux_pump_up(i0, v1, capacitance, r_off, coil: FluxCoil, v_diode, steps: in
         a_v, a_t = slopes(i, v)
         b_v, b_t = slopes(i - 0.5 * h, v + 0.5 * h * a_v)
         c_v, c_t = slopes(i - 0.5 * h, v + 0.5 * h * b_v)
-        d_v, d_t = slopes(np.maximum(i - h, 0.0), v + h * c_v)
+        d_v, d_t = slopes(np.maximum(i - h, i_end), v + h * c_v)
         v = v + h / 6.0 * (a_v + 2.0 * b_v + 2.0 * c_v + d_v)
         t = t + h / 6.0 * (a_t + 2.0 * b_t + 2.0 * c_t + d_t)
     q = c * (v - v1)

@@ -1,0 +1,191 @@
+"""A full bridge's fast decay into the drooping bus with a saturating coil (the flux-linkage
+curve of :mod:`coildrive.model.flux` in place of ``L`` in :mod:`coildrive.model.bus_decay`)::
+
+    L_d(i) di/dt = -(R i + v + 2 V_d)
+    C dv/dt      = i + (V_s - v)/R_s          i(0) = i0, v(0) = v0
+
+(``R`` ohm the loop, ``V_d`` V each body diode, ``R_s`` ohm the source, ``C`` F the bulk
+capacitor; a source that takes current back.) With ``u = -(v + 2 V_d)`` this is exactly the
+peak's circuit of :mod:`coildrive.model.flux_bus` (``L_d di/dt = u - R i``, ``C du/dt =
+(V_s' - u)/R_s - i``) with the source ``V_s' = -(V_s + 2 V_d)``, started from ``(i0, u0)``
+instead of switch-on: the same ETDRK4 stepping (the bus's ``R_s C`` relaxation taken
+exactly, the table's points as events), read by the same cubic Hermite interpolation.
+It holds until the current's first zero, where the diodes block.
+
+The steps: first :data:`SETTLE_STEPS` over ``25 R_s C`` or a tenth of the bound below,
+the shorter (a bus that starts off the value
+the current holds it at, ``V_s + R_s i0``, relaxes there through ``R_s C``: ETDRK4 steps
+that exactly, but the Hermite cubics that read the record between steps need steps
+shorter than it to follow that transient); then uniform, :data:`STEPS` of them over a
+bound on the first zero, and never longer than a tenth of the fastest coil time constant
+or LC ringing period. While ``i > 0`` the
+bus cannot fall below ``min(v0, V_s)`` (below ``V_s`` both the source and the coil charge
+it), so ``|dpsi/dt| >= min(v0, V_s) + 2 V_d + R i`` and the flux is gone by ``psi(i0) /
+(min(v0, V_s) + 2 V_d)``; a bus at ``-2 V_d`` (no such bound) takes five secant time
+constants ``psi(i0)/(R i0)``. Every run is continued in further stretches of the same
+steps until each point's current has crossed zero.
+
+All functions broadcast over numpy arrays; units are A, V, ohm, H, Wb, F, s.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+
+import numpy as np
+
+from . import flux_bus
+from .bridge import _flux_pump_up
+from .bus_decay import FastDecay
+from .flux import FluxCoil
+
+#: Steps over the bound on the first zero (module docstring).
+STEPS = 100
+#: The first stretch: :data:`SETTLE_STEPS` steps over ``SETTLE R_s C`` (module docstring).
+SETTLE = 25.0
+SETTLE_STEPS = 60
+#: Steps per fastest coil time constant and per LC ringing period.
+PER_TIME_CONSTANT = 10
+#: Further stretches tried when a point's current has not crossed zero.
+EXTENSIONS = 8
+
+
+def _record(i0, v0, v_s, r_s, c, r, coil: FluxCoil, v_d):
+    """The run of the module docstring (in ``u``) from ``(i0, v0)`` until every point's
+    current has crossed zero: ``(FluxBus, Record)``."""
+    u_s = -(v_s + 2.0 * v_d)
+    fb = flux_bus.FluxBus(u_s, r_s, c, r, coil, u_s / (r + r_s))
+    cv, s = coil.curve, coil.scale
+    k0 = np.clip(np.searchsorted(cv.current, i0, side="right") - 1, 0, cv.base.size - 1)
+    u0 = -(v0 + 2.0 * v_d)
+    di0 = (u0 - r * i0) / (s * cv.incremental(i0))               # the rates at the start, as run's rows
+    du0 = -(u0 - u_s + r_s * i0) / (r_s * c)
+    start = flux_bus.Record(*(x[None] for x in (np.zeros_like(i0), i0, u0, di0, du0)), k=k0)
+    psi0 = s * cv.psi(i0)
+    grid = np.linspace(0.0, 1.0, 33).reshape((-1,) + (1,) * i0.ndim) * i0
+    l_min = np.maximum((s * cv.incremental(grid)).min(axis=0), 1e-300)
+    g = r + r_s
+    lo = np.minimum(v0, v_s) + 2.0 * v_d
+    with np.errstate(divide="ignore", invalid="ignore"):
+        bound = np.where(lo > 0, psi0 / lo, psi0 / np.maximum(r * i0, 1e-300) * 5.0)
+    h = np.minimum(bound / STEPS, np.minimum(l_min / g, 2.0 * np.pi * np.sqrt(l_min * c)) / PER_TIME_CONSTANT)
+    n = int(np.max(np.ceil(bound / h)))
+    n = min(max(n, STEPS), 20 * STEPS)
+    h = bound / n
+    # the bus's own transient from a start off its slaved value: finely over 25 R_s C (at
+    # most a tenth of the bound: past it the main steps are at most 2.5 R_s C, the
+    # transient down by e^-10 or more)
+    t1 = np.minimum(SETTLE * r_s * c, 0.1 * bound)
+    rec = flux_bus.run(fb, [(SETTLE_STEPS, t1 / SETTLE_STEPS), (n, h)], start)
+    for _ in range(EXTENSIONS):
+        if not np.any(np.min(rec.i, axis=0) > 0.0):
+            break
+        rec = flux_bus.run(fb, [(n, h)], rec)
+    if np.any(np.min(rec.i, axis=0) > 0.0):
+        raise ArithmeticError("the fast decay's current did not reach zero")
+    fb._run.extend([rec, []])
+    return fb, rec
+
+
+def _fall(rec, target):
+    """Time (s) the current first falls to ``target`` A (per point; 0 where it starts at or
+    below it): the cubic Hermite interpolant of the first step that reaches it."""
+    t0, h, y0, y1, d0, d1 = flux_bus._segments(rec)[:6]
+    target = np.broadcast_to(np.asarray(target, float), y0.shape[1:])
+    hit = (y1 <= target) & (h > 0)
+    m = np.argmax(hit, axis=0)
+    cols = np.arange(target.size).reshape(target.shape)
+    pick = (m, cols) if target.ndim else (m,)
+    s = flux_bus._hermite_root(y0[pick], y1[pick], d0[pick], d1[pick], target, hit.any(axis=0))
+    return np.where(rec.i[0] <= target, 0.0, t0[pick] + s * h[pick])
+
+
+def _charge(rec, t_end):
+    """``int_0^t_end i dt`` (C, per point): each step's Hermite cubic integrated exactly
+    (``h ((y0 + y1)/2 + (d0 - d1)/12)``), the step holding ``t_end`` up to it."""
+    t0, h, y0, y1, d0, d1 = flux_bus._segments(rec)[:6]
+    full = (t0 + h <= t_end) & (h > 0)
+    whole = np.sum(np.where(full, h * (0.5 * (y0 + y1) + (d0 - d1) / 12.0), 0.0), axis=0)
+    inside = (t0 < t_end) & (t0 + h > t_end)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        s = np.clip(np.where(inside, (t_end - t0) / np.where(h > 0, h, 1.0), 0.0), 0.0, 1.0)
+    # int_0^s of the Hermite basis: y0 (s - s^3 + s^4/2) + d0 (s^2/2 - 2 s^3/3 + s^4/4)
+    #   + y1 (s^3 - s^4/2) + d1 (s^4/4 - s^3/3)
+    s2, s3, s4 = s * s, s ** 3, s ** 4
+    part = h * (y0 * (s - s3 + 0.5 * s4) + d0 * (0.5 * s2 - 2.0 * s3 / 3.0 + 0.25 * s4)
+                + y1 * (s3 - 0.5 * s4) + d1 * (0.25 * s4 - s3 / 3.0))
+    return whole + np.sum(np.where(inside, part, 0.0), axis=0)
+
+
+def decay(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d) -> FastDecay:
+    """:func:`coildrive.model.bus_decay.decay` with the flux-linkage curve ``coil`` (its
+    scale broadcast with the points): the fast decay of ``i0`` A from the bus at ``v0`` V
+    (at or below ``v_s`` V), ``i_drop`` A the drop-out current."""
+    shape, args = _points(i0, v0, i_drop, v_s, r_s, c, r, coil, v_d)
+    return _shaped(_decay(*args)[0], shape)
+
+
+def _points(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d):
+    """``(shape, arguments)``: the arguments broadcast together (the coil's scale too) to
+    ``shape`` and flattened (the run's record has one column per point)."""
+    full = np.broadcast_arrays(*(np.asarray(x, float) for x in (i0, v0, i_drop, v_s, r_s, c, r, v_d, coil.scale)))
+    i0, v0, i_drop, v_s, r_s, c, r, v_d, scale = (x.ravel().copy() for x in full)
+    return full[0].shape, (i0, v0, i_drop, v_s, r_s, c, r, coil.with_scale(scale), v_d)
+
+
+def _shaped(d: FastDecay, shape) -> FastDecay:
+    """``d`` with every field reshaped to ``shape``."""
+    return FastDecay(*(np.reshape(getattr(d, f.name), shape) for f in dataclasses.fields(d)))
+
+
+def _decay(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d):
+    """:func:`decay` on broadcast points: ``(FastDecay, its Record)``."""
+    fb, rec = _record(i0, v0, v_s, r_s, c, r, coil, v_d)
+    t_zero = _fall(rec, 0.0)
+    t_drop = np.minimum(_fall(rec, i_drop), t_zero)
+    u_low, t_low = flux_bus.lowest_bus(t_zero, fb)          # the lowest u is the highest bus
+    v_top = -u_low - 2.0 * v_d
+    v_z = -flux_bus.state(t_zero, fb)[1] - 2.0 * v_d
+    return FastDecay(t_drop, t_zero, v_top, np.maximum(v_top, v_s), np.where(v_top > v_s, t_low, np.inf), v_z,
+                     _charge(rec, t_zero)), rec
+
+
+def decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d) -> FastDecay:
+    """:func:`decay` on a supply that cannot sink (an ideal one-way feed, as
+    :func:`coildrive.model.bus_decay.decay_no_sink`): with the source until the bus reaches
+    ``v_s`` V (the first crossing in the run), then into ``C`` alone, the saturating
+    coil's series RLC circuit of :func:`coildrive.model.bridge._flux_pump_up` (stepped in
+    the falling current) down to the drop-out current and to zero. ``bus_max`` is the bus
+    when the current stops (or ``v_s``, which a bus that never got there relaxes back
+    to)."""
+    shape, (i0, v0, i_drop, v_s, r_s, c, r, coil, v_d) = _points(i0, v0, i_drop, v_s, r_s, c, r, coil, v_d)
+    fed, rec = _decay(i0, np.minimum(v0, v_s), i_drop, v_s, r_s, c, r, coil, v_d)
+    # the bus reaches v_s (u falls to -(v_s + 2 V_d)) before the current stops
+    u_s = -(v_s + 2.0 * v_d)
+    t0, h, _, _, _, _, u0, u1, du0, du1 = flux_bus._segments(rec)
+    hit = (u1 <= u_s) & (h > 0) & (t0 < fed.zero_time)
+    reach = hit.any(axis=0) & (v0 < v_s)
+    m = np.argmax(hit, axis=0)
+    cols = np.arange(u_s.size).reshape(u_s.shape)
+    pick = (m, cols) if u_s.ndim else (m,)
+    sa = flux_bus._hermite_root(u0[pick], u1[pick], du0[pick], du1[pick], u_s, reach)
+    t_reach = np.where(reach, t0[pick] + sa * h[pick], 0.0)
+    blocked = reach | (v0 >= v_s)
+    fb = flux_bus.FluxBus(u_s, r_s, c, r, coil, u_s / (r + r_s), [rec, []])
+    i_reach = flux_bus.state(t_reach, fb)[0]
+    t_a = np.where(v0 >= v_s, 0.0, np.where(reach, t_reach, fed.zero_time))
+    i_a = np.where(v0 >= v_s, i0, np.where(reach, i_reach, 0.0))
+    v_a = np.where(blocked, np.maximum(v0, v_s), fed.bus_at_zero)
+    q_a = np.where(v0 >= v_s, 0.0, np.where(reach, _charge(rec, t_a), fed.charge))
+    i_b = np.where(blocked, i_a, 0.0)
+    full = _flux_pump_up(i_b, v_a, c, r, coil, v_d)
+    to_drop = _flux_pump_up(i_b, v_a, c, r, coil, v_d, i_end=np.minimum(i_drop, i_b))
+    v_end = np.where(blocked, full.v2, fed.bus_at_zero)
+    q_b = np.where(blocked, full.charge, 0.0)
+    drop_in_a = (~blocked) | (i_a <= i_drop)
+    t_drop = np.where(drop_in_a, fed.drop_time, t_a + to_drop.zero_time)
+    t_zero = np.where(blocked, t_a + full.zero_time, fed.zero_time)
+    bus_top = np.where(blocked, v_end, fed.bus_top)
+    when = np.where(blocked, t_zero, fed.bus_max_time)
+    return _shaped(FastDecay(t_drop, t_zero, bus_top, np.maximum(bus_top, v_s),
+                             np.where(bus_top > v_s, when, np.inf), v_end, q_a + q_b), shape)

@@ -1,0 +1,136 @@
+"""A saturating coil (a flux-linkage curve) on a full bridge on the drooping bus
+(``[supply] source_resistance`` + ``capacitance``, ``sink = true`` or ``false``) against the
+outside world.
+
+The peak through two switches is coildrive/model/flux_bus.py's run; the fast decay into the
+bus behind ``R_s`` and ``C`` is coildrive/model/flux_bus_decay.py (stepped, the bus's
+``R_s C`` relaxation exact; a supply that cannot sink blocks at the source's voltage and
+the rest charges ``C`` alone). References:
+
+* ngspice (batch mode): the element-level bridge of tests/test_reference_ngspice_bridge.py
+  with the flux-controlled inductor of tests/test_flux_ngspice.py in place of ``LCOIL``
+  and the feed resistor ``RSRC`` of tests/test_bridge_droop.py (after it, for a supply
+  that cannot sink, the ideal feed diode ``BFEED``): the current at turn-off, the lowest
+  bus in the peak, the drop-out and zero times and the highest bus;
+* scipy's ``solve_ivp`` (Radau) of the decay's two equations with ``L_d(i)`` from the
+  same curve, written afresh here (the feed ``max(V_s - v, 0)/R_s`` when it cannot sink),
+  terminal event at zero current.
+"""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+
+from conftest import run_cli
+from ngspice_run import run
+
+from coildrive.model import flux_bus, flux_bus_decay
+from test_bridge_droop import _drive, droop_netlist
+from test_flux_bridge import bridge_curve
+from test_reference_ngspice_bridge import (COILS, EDGE, I_DROP, R_COIL, R_SENSE, R_SW, STAGGER, V_D, V_SUP,
+                                           _coil_netlist, _on_until, _pulse)
+
+COIL = COILS["curve"]
+
+
+@pytest.mark.ngspice
+@pytest.mark.parametrize("r_s, c, sink", [(1.5, 100e-6, True), (1.5, 100e-6, False)], ids=["sink", "no-sink"])
+def test_curve_bridge_peak_and_release_on_the_drooping_bus_match_ngspice(tmp_path, r_s, c, sink):
+    r_on = R_COIL + 2 * R_SW + R_SENSE
+    b = flux_bus.bus(V_SUP, r_s, c, r_on, COIL)
+    t_on = 1.5 * float(flux_bus.rise_time(0.55, b))
+    i_on, v_on = (float(x) for x in flux_bus.state(t_on, b))
+    v_low = float(flux_bus.lowest_bus(t_on, b)[0])
+    fast = flux_bus_decay.decay if sink else flux_bus_decay.decay_no_sink
+    d = fast(i_on, v_on, I_DROP, V_SUP, r_s, c, R_COIL + R_SENSE, COIL, V_D)
+    t_zero = float(d.zero_time)
+    step = t_zero / 4000
+    t_off = t_on + EDGE / 2 + STAGGER
+    tend = t_off + 1.3 * t_zero
+    gates = {1: _pulse(0.0, t_on), 2: "DC 0", 3: "DC 0", 4: _on_until(t_off)}
+    measures = [f"meas tran ioff FIND i(VM) AT={t_off!r}", f"meas tran voff FIND v(bus) AT={t_off!r}",
+                f"meas tran vlow MIN v(bus) from=0 to={t_off!r}",
+                f"meas tran tdrop WHEN i(VM)={I_DROP!r} FALL=1", "meas tran tzero WHEN i(VM)=1e-6 FALL=1",
+                f"meas tran vmax MAX v(bus) from={t_off!r} to={tend!r}"]
+    text = droop_netlist("curve-bridge-droop", gates, tend, step, measures, r_s, c, sink)
+    res = run(tmp_path, "curve-bridge-droop", _coil_netlist(text, COIL))
+    # the release from the state ngspice has at turn-off
+    d = fast(res["ioff"], res["voff"], I_DROP, V_SUP, r_s, c, R_COIL + R_SENSE, COIL, V_D)
+    print(f"curve bridge on a drooping bus (sink={sink}) vs ngspice: i_off {i_on:.6e}/{res['ioff']:.6e} A, "
+          f"lowest bus {v_low:.6e}/{res['vlow']:.6e} V, drop {float(d.drop_time):.6e}/{res['tdrop'] - t_off:.6e} s, "
+          f"zero {float(d.zero_time):.6e}/{res['tzero'] - t_off:.6e} s, highest bus {float(d.bus_top):.6e}/"
+          f"{res['vmax']:.6e} V")
+    # ngspice: the peak through two switches on the drooping bus (1 %; the buses 0.1 %)
+    assert res["ioff"] == pytest.approx(i_on, rel=0.01)
+    assert res["voff"] == pytest.approx(v_on, rel=1e-3)
+    assert res["vlow"] == pytest.approx(v_low, rel=1e-3)
+    # ... the release's times within 1 % plus one step, the highest bus within 0.1 %
+    for name, t_model in (("tdrop", float(d.drop_time)), ("tzero", float(d.zero_time))):
+        assert abs(res[name] - t_off - t_model) <= 0.01 * t_model + step, (name, res[name] - t_off, t_model)
+    assert res["vmax"] == pytest.approx(max(float(d.bus_top), res["voff"]), rel=1e-3)
+    assert float(d.bus_max) > V_SUP + 0.2     # the returned current lifts the bus above the source
+
+
+@pytest.mark.parametrize("sink", [True, False], ids=["sink", "no-sink"])
+def test_curve_fast_decay_into_the_bus_against_solve_ivp(sink):
+    from scipy.integrate import solve_ivp
+    r = R_COIL + R_SENSE
+    # (i0 A, v0 V, R_s ohm, C F): a cable and a small capacitor; a battery lead and a large
+    # one (the bus rings); a stiff source (R_s C = 2.35 us, far below the decay's ms)
+    cases = [(0.9, 23.0, 1.5, 100e-6), (0.9, 24.0, 0.5, 4.7e-3), (0.6, 23.9, 0.005, 470e-6)]
+    i0s, v0s, r_ss, cs = (np.array(x) for x in zip(*cases[:2]))     # the first two as one array
+    d = (flux_bus_decay.decay if sink else flux_bus_decay.decay_no_sink)(i0s, v0s, I_DROP, V_SUP, r_ss, cs, r, COIL,
+                                                                         V_D)
+    one = (flux_bus_decay.decay if sink else flux_bus_decay.decay_no_sink)(
+        cases[2][0], cases[2][1], I_DROP, V_SUP, cases[2][2], cases[2][3], r, COIL, V_D)
+    for k, (i0, v0, r_s, c) in enumerate(cases):
+        def f(t, x, r_s=r_s, c=c):   # L_d(i) di/dt = -(R i + v + 2 V_d); C dv/dt = i + feed; q' = i
+            feed = (V_SUP - x[1]) / r_s
+            ld = float(COIL.curve.incremental(x[0]))
+            return [-(r * x[0] + x[1] + 2 * V_D) / ld, (x[0] + (feed if sink else max(feed, 0.0))) / c, x[0]]
+
+        def zero(t, x):
+            return x[0]
+        zero.terminal, zero.direction = True, -1
+
+        def drop(t, x):
+            return x[0] - I_DROP
+        s = solve_ivp(f, [0, 1], [i0, v0, 0.0], method="Radau", events=[zero, drop], rtol=1e-10, atol=1e-12,
+                      dense_output=True)
+        t_zero, t_drop = s.t_events[0][0], s.t_events[1][0]
+        v_top = max(float(np.max(s.sol(np.linspace(0, t_zero, 20001))[1])), V_SUP)
+        got = [float(np.ravel(x)[k]) for x in (d.zero_time, d.drop_time, d.bus_max, d.charge)] if k < 2 else \
+            [float(x) for x in (one.zero_time, one.drop_time, one.bus_max, one.charge)]
+        # scipy solve_ivp (Radau, rtol 1e-10): the times, the highest bus and the charge to 1e-5
+        assert got == pytest.approx([t_zero, t_drop, v_top, s.y_events[0][0][2]], rel=1e-5), (k, got)
+
+
+def test_curve_bridge_design_on_the_drooping_bus(tmp_path):
+    """End to end: the saturating bridge example with a 2 ohm source designs (was refused)
+    and its release takes the bus above the source and the source's voltage."""
+    p = bridge_curve(tmp_path, sink=True)
+    text = p.read_text()
+    p.write_text(text.replace("sink = true", 'sink = true\nsource_resistance = "2 ohm"', 1))
+    r = run_cli("design", str(p), "--json", "--samples", "100")
+    assert r.returncode in (0, 1), r.stderr
+    doc = json.loads(r.stdout)
+    sup, rel = doc["supply"], doc["release"]
+    # the bus rises above the highest supply (28 V) as the release returns the current through R_s
+    assert sup["highest_bus_v"] > 28.0 and sup["highest_bus_event"]
+    assert rel["peak_switch_voltage_v"] >= sup["highest_bus_v"] + 0.7
+    assert sup["lowest_bus_v"] < 20.0
+    assert [c for c in doc["checks"] if c["name"] == "capacitor_voltage"][0]["ok"]
+
+
+def test_curve_and_eddy_on_the_drooping_bus_still_refused(tmp_path):
+    p = _drive(tmp_path)
+    text = p.read_text()
+    assert 'inductance = "70 mH"\n' in text
+    p.write_text(text.replace('inductance = "70 mH"\n', 'flux_current = [0, 0.5, 1, 2]\n'
+                              'flux_linkage = ["0 mWb", "40 mWb", "60 mWb", "70 mWb"]\neddy_resistance = "200 ohm"\n'))
+    r = run_cli("design", str(p))
+    assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1, r.stderr
+    assert "eddy" in r.stderr, r.stderr
