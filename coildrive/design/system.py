@@ -282,7 +282,13 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             # the flux (model/flux_bound.py): one part
             times, currents = flux_bound.rise_table(flux.FluxCoil(curve, float(scale.min())), hi, r_on, tp)
             branch.update({"rise_time_s": [float(x) for x in times], "rise_current_a": [float(x) for x in currents]})
-            ripple = hi * float(np.max(duty_hi)) / f / float(scale.min())
+            if current is not None:
+                # hysteretic: on for at most the delay after the peak, then off down to the
+                # lower threshold, the flux excess over the hold's top falling
+                # (docs/design-method.md, "A flux-linkage curve")
+                ripple = hi * d.hold.thresholds.delay_s / float(scale.min())
+            else:
+                ripple = hi * float(np.max(duty_hi)) / f / float(scale.min())
             tail = flux_bound.tail_excess(curve, float(currents[-1]), hold_top, ripple)
             branch.update({"tail_flux_wb": [float(x) for x in tail["table"][0]],
                            "tail_current_a": [float(x) for x in tail["table"][1]],
@@ -343,7 +349,16 @@ def _current_mode_hold(d):
     def hold(cold):
         a_top = cold.v_on / cold.r_on
         i_hi = th.upper_a / low
-        top = np.minimum(a_top, a_top - (a_top - i_hi) * np.exp(-th.delay_s * cold.r_on / cold.inductance))
+        if isinstance(cold.inductance, flux.FluxCoil):
+            # a saturating coil: over the delay the flux rises by at most v_on x delay, so
+            # the top is at most psi^-1(psi(I_hi') + v_on delay / s) at the lowest scale s,
+            # and never above A from below it (docs/design-method.md, "Several channels")
+            curve, s_min = cold.inductance.curve, float(np.min(cold.inductance.scale))
+            rise = float(np.max(cold.v_on)) * th.delay_s / s_min
+            reach = float(np.asarray(curve.current_of(float(curve.psi(i_hi)) + rise)).max())
+            top = np.minimum(a_top, reach)
+        else:
+            top = np.minimum(a_top, a_top - (a_top - i_hi) * np.exp(-th.delay_s * cold.r_on / cold.inductance))
         return float(np.max(top)), float(th.upper_a / high), settle
     return hold
 
@@ -716,15 +731,16 @@ def rail_curves(result: SystemResult, points: int = 6000) -> list[dict]:
 
 def _refuse(system: System, ch) -> None:
     """What the rail's current bound is made for: a linear coil (with a moving armature or
-    an eddy term, not both) or a flux-linkage curve (neither; voltage-mode), on one switch
+    an eddy term, not both) or a flux-linkage curve (neither; voltage-mode or a hysteretic
+    current-mode hold), on one switch
     or a full bridge, a voltage-mode (fixed, supply-table or closed-loop) or current-mode hold and one
     switch. Anything else is refused in one line."""
     d = ch.drive
     why = None
     if d.coil.flux_current and d.armature is not None:
         key, why = "armature", "a moving armature with a flux-linkage curve"
-    elif d.coil.flux_current and d.hold.mode == "current":
-        key, why = "hold.mode", "a current-mode hold with a flux-linkage curve"
+    elif d.coil.flux_current and d.hold.mode == "current" and d.hold.control != "hysteretic":
+        key, why = "hold.control", "a fixed off-time current-mode hold with a flux-linkage curve"
     elif d.hold.mode == "latch":
         key, why = "hold.mode", "a latching coil"
     elif d.coil.eddy_resistance and (d.coil.flux_current or d.armature is not None or d.hold.mode == "current"):
