@@ -19,7 +19,7 @@ import pytest
 from typer.testing import CliRunner
 
 from conftest import BOARDS
-from rail_reference import assert_staggered_within_limit, firmware_lookup, linear_tail, manifold_copy, readable
+from rail_reference import assert_staggered_within_limit, linear_tail, manifold_copy, supply_corners
 
 from coildrive.cli import app
 from coildrive.config import load_drive
@@ -101,13 +101,9 @@ def test_curve_bound_never_below_the_simulated_worst(system):
     drv = load_drive(ch["drive_file"], BOARD)
     ld = _curve(drv)
     tol_r, tol_l = drv.coil.resistance_tolerance, drv.coil.inductance_tolerance
-    lsb = drv.board.adc.reference / 2**drv.board.adc.bits * drv.board.supply_sense.divider
-    codes = d["peak_table"]["adc_codes"]
     period = 1 / d["hold"]["frequency_hz"]
     ratios = []
-    for v in (drv.supply.min, codes[len(codes) // 2] * lsb - 1e-6, drv.supply.max):
-        peak, duty = firmware_lookup(d, drv, v)
-        branches = readable(ch, v)
+    for v, peak, duty, branches in supply_corners(ch, drv):
         worst_peak = 0.0
         for r_f in (1 - tol_r, 1 + tol_r):
             r_on, r_off, v_fw = _loop(drv, drv.ambient.min, r_f)
