@@ -137,11 +137,15 @@ def test_a_fixed_off_time_on_a_curve_is_refused(tmp_path):
 def eddy_doc(tmp_path_factory):
     """The manifold with its two purge valves on the curve with ``R_e`` = 150 ohm, the
     supply's limit raised to 3.5 A (the bound's tail on the saturating curve is loose)."""
+    from coildrive.design.system import design_system
+    from coildrive.system_file import load_system
+
     path = manifold_copy(tmp_path_factory.mktemp("eddyflux"), 'inductance = "70 mH"\n', CURVE + EDDY)
     path.write_text(path.read_text().replace('current_limit = "3 A"', 'current_limit = "3.5 A"'))
-    r = CliRunner().invoke(app, ["design", str(path), "--json"])
-    assert r.exit_code == 0, r.output
-    return json.loads(r.stdout)["system"], path.parent / "purge-valve-24v.toml"
+    result = design_system(load_system(path))
+    doc = json.loads(json.dumps(result.to_dict(), allow_nan=False))["system"]
+    assert all(c["ok"] for c in doc["checks"]), doc["checks"]
+    return doc, path.parent / "purge-valve-24v.toml", result
 
 
 def _eddy_run(ld, s, v, r_on, r_off, v_fw, r_e, t_peak, duty, period, periods=10):
@@ -175,7 +179,7 @@ def test_eddy_curve_bound_never_below_the_simulated_current(eddy_doc):
     peak-table step and 28 V, cold, R and L at both tolerance ends. The channel's bound is
     never below the simulated terminal current; it starts at the step ``V/(R + R_e)`` and
     its peak end is within 8 % of the simulated worst."""
-    system, purge = eddy_doc
+    system, purge, _ = eddy_doc
     ch = system["channels"][-1]
     d, drv = ch["design"], load_drive(purge)
     ld, r_e = _curve(drv), drv.coil.eddy_resistance
@@ -202,3 +206,20 @@ def test_eddy_curve_staggered_total_never_above_the_limit(eddy_doc):
     """The dense sweep (1e5 points) of the rail's bound with two eddy-curve channels
     (:func:`rail_branch`, written afresh): never above the 3.5 A limit."""
     assert_staggered_within_limit(eddy_doc[0], rail_branch)
+
+
+def test_eddy_curve_system_simulation_within_the_bound(eddy_doc):
+    """``simulate SYSTEM.toml`` takes the eddy-curve channels (the model's own actuation):
+    at the corner of the most current (28 V, cold, R and L low, 3 ms of hold) the
+    simulated rail never exceeds the design's bound (a plumbing check: both are the
+    model's)."""
+    from coildrive.design.system import draw_bound
+    from coildrive.design.system_sim import simulate_system
+
+    doc, _, result = eddy_doc
+    drv = result.channels[-1].design.drive
+    v = drv.supply.max
+    run = simulate_system(result, v, drv.ambient.min, 0.003, 8, 1 - drv.coil.resistance_tolerance,
+                          1 - drv.coil.inductance_tolerance)
+    bound = sum(draw_bound(run.time - c["offset_s"], {"branches": readable(c, v)}) for c in doc["channels"])
+    assert np.all(run.rail <= bound + 1e-9), float(np.max(run.rail - bound))
