@@ -102,3 +102,14 @@ def firmware_lookup(d, drv, v: float) -> tuple[float, float]:
 def readable(ch, v: float) -> list[dict]:
     """A channel's branches whose supply range holds ``v`` V."""
     return [b for b in ch["bound"]["branches"] if b["supply_low_v"] <= v <= b["supply_v"]]
+
+
+def supply_corners(ch, drv):
+    """``(supply V, peak s, duty, readable branches)`` of a channel (``design --json``'s,
+    its drive ``drv``) at the lowest supply, just below a middle peak-table step and the
+    highest: what the firmware looks up there (:func:`firmware_lookup`)."""
+    d = ch["design"]
+    lsb = drv.board.adc.reference / 2**drv.board.adc.bits * drv.board.supply_sense.divider
+    codes = d["peak_table"]["adc_codes"]
+    for v in (drv.supply.min, codes[len(codes) // 2] * lsb - 1e-6, drv.supply.max):
+        yield (v, *firmware_lookup(d, drv, v), readable(ch, v))

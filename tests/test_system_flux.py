@@ -19,7 +19,7 @@ import pytest
 from typer.testing import CliRunner
 
 from conftest import BOARDS
-from rail_reference import assert_staggered_within_limit, firmware_lookup, linear_tail, manifold_copy, readable
+from rail_reference import assert_staggered_within_limit, linear_tail, manifold_copy, supply_corners
 
 from coildrive.cli import app
 from coildrive.config import load_drive
@@ -101,13 +101,9 @@ def test_curve_bound_never_below_the_simulated_worst(system):
     drv = load_drive(ch["drive_file"], BOARD)
     ld = _curve(drv)
     tol_r, tol_l = drv.coil.resistance_tolerance, drv.coil.inductance_tolerance
-    lsb = drv.board.adc.reference / 2**drv.board.adc.bits * drv.board.supply_sense.divider
-    codes = d["peak_table"]["adc_codes"]
     period = 1 / d["hold"]["frequency_hz"]
     ratios = []
-    for v in (drv.supply.min, codes[len(codes) // 2] * lsb - 1e-6, drv.supply.max):
-        peak, duty = firmware_lookup(d, drv, v)
-        branches = readable(ch, v)
+    for v, peak, duty, branches in supply_corners(ch, drv):
         worst_peak = 0.0
         for r_f in (1 - tol_r, 1 + tol_r):
             r_on, r_off, v_fw = _loop(drv, drv.ambient.min, r_f)
@@ -134,17 +130,19 @@ def test_curve_bound_never_below_the_simulated_worst(system):
     assert all(1.0 <= x <= 1.08 for x in ratios), ratios
 
 
-def test_staggered_total_never_above_the_limit(system):
-    """A dense sweep (1e5 points, numpy) of the rail's bound (the curve's tables, the
-    linear channels' exponentials, written afresh) at every supply where the readable
-    branches change: never above the limit with the stagger found."""
-    def branch(t, b):
-        if "rise_time_s" in b:
-            return _branch(t, b)
-        rise = b["supply_v"] / b["resistance_ohm"] * (1 - np.exp(-np.maximum(t, 0) * b["resistance_ohm"] / b["inductance_h"]))
-        return np.where(t < 0, 0, np.where(t <= b["peak_s"], rise, linear_tail(t, b)))
+def rail_branch(t, b):
+    """Any branch of a rail with curves on it: a curve's tables (:func:`_branch`), a linear
+    channel's exponential rise and :func:`linear_tail`, written afresh."""
+    if "rise_time_s" in b:
+        return _branch(t, b)
+    rise = b["supply_v"] / b["resistance_ohm"] * (1 - np.exp(-np.maximum(t, 0) * b["resistance_ohm"] / b["inductance_h"]))
+    return np.where(t < 0, 0, np.where(t <= b["peak_s"], rise, linear_tail(t, b)))
 
-    assert_staggered_within_limit(system, branch)
+
+def test_staggered_total_never_above_the_limit(system):
+    """A dense sweep (1e5 points, numpy) of the rail's bound (:func:`rail_branch`) at every
+    supply where the readable branches change: never above the limit with the stagger found."""
+    assert_staggered_within_limit(system, rail_branch)
 
 
 def test_droop_bound_never_above_the_simulated_bus(system):

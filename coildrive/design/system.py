@@ -245,7 +245,7 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
         r_on = float(np.min(top_cold.r_on))
         coil = top_cold.inductance
         r_eddy = None
-        if isinstance(coil, eddy.EddyCoil):       # (linear: a curve under it is refused)
+        if isinstance(coil, eddy.EddyCoil):       # (its magnetising coil: linear or a curve)
             r_eddy, coil = float(np.min(coil.resistance)), coil.magnetising
         curve = coil.curve if isinstance(coil, flux.FluxCoil) else None
         if curve is not None:     # a saturating coil: its small-signal range (reports only)
@@ -268,6 +268,15 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             # the peak's end current is bounded at the open gap, its decay at the seated
             # coil's highest inductance: one part
             i_pe, ends = np.array([float(_branch_rise(tp, branch))]), np.array([l_min, l_max])
+        elif r_eddy is not None and curve is not None:
+            branch.update(_eddy_curve_branch(flux.FluxCoil(curve, float(scale.min())), hi, r_on, r_eddy, tp,
+                                             float(np.max(orbit.i_max)), bottom))
+            r_th = r_eddy * np.minimum(top_cold.r_on, top_cold.r_off) / (np.minimum(top_cold.r_on, top_cold.r_off) + r_eddy)
+            r_slow = float(np.min(r_th))
+            hold_top, bottom = branch.pop("hold_top_a"), 0.0
+            i_pe = np.array([branch.pop("excess_a")])
+            ends = np.array([l_min, branch.pop("l_max_h") * float(scale.max())])
+            peak_end["a"] = float(branch["rise_current_a"][-1])
         elif r_eddy is not None:
             # the terminal current's step and rise (model/eddy.py's Thevenin pair); the tail
             # on the magnetising current, decaying at the slowest Thevenin rate: one part
@@ -282,7 +291,13 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             # the flux (model/flux_bound.py): one part
             times, currents = flux_bound.rise_table(flux.FluxCoil(curve, float(scale.min())), hi, r_on, tp)
             branch.update({"rise_time_s": [float(x) for x in times], "rise_current_a": [float(x) for x in currents]})
-            ripple = hi * float(np.max(duty_hi)) / f / float(scale.min())
+            if current is not None:
+                # hysteretic: on for at most the delay after the peak, then off down to the
+                # lower threshold, the flux excess over the hold's top falling
+                # (docs/design-method.md, "A flux-linkage curve")
+                ripple = hi * d.hold.thresholds.delay_s / float(scale.min())
+            else:
+                ripple = hi * float(np.max(duty_hi)) / f / float(scale.min())
             tail = flux_bound.tail_excess(curve, float(currents[-1]), hold_top, ripple)
             branch.update({"tail_flux_wb": [float(x) for x in tail["table"][0]],
                            "tail_current_a": [float(x) for x in tail["table"][1]],
@@ -314,6 +329,40 @@ def _armature_rise(arm, supply: float, r_on: float, lc_low: float, lc_high: floa
             "closing_s": min(closing, peak_s)}
 
 
+def _eddy_curve_branch(coil, v: float, r: float, r_e: float, peak_s: float, top_m: float,
+                       bottom_m: float) -> dict:
+    """The keys of a branch with an eddy term on a flux-linkage curve (``coil`` at its
+    lowest scale), at ``v`` V through the coldest on-loop's ``r`` ohm, ``r_e`` ohm across
+    the coil, a peak ``peak_s`` s long, the hold orbit's highest magnetising top ``top_m``
+    A and its lowest bottom ``bottom_m`` A (docs/design-method.md, "An eddy-current term").
+
+    The magnetising current obeys ``s dpsi/dt = V_th - R_th i_m`` (``V_th = V R_e/(R +
+    R_e)``, ``R_th = R R_e/(R + R_e)``): the curve's exact rise at ``V_th`` through
+    ``R_th`` (:func:`~coildrive.model.flux_bound.rise_table`), and the terminal current
+    ``g(i_m) = (V + R_e i_m)/(R + R_e)`` on it (``rise_time_s``/``rise_current_a``).
+    After the peak the magnetising current is at most ``psi^-1(psi(top_m) + D)``, ``D``
+    the flux excess over the orbit's, from ``psi(i_pe) - psi(bottom_m)`` falling at the
+    highest incremental inductance (``l_max_h``, unscaled); the terminal current is at
+    most ``max(i_m, g(i_m))`` of that (off, it is below ``i_m``): ``tail_flux_wb`` /
+    ``tail_current_a``, ``hold_top_a`` its value at ``D = 0``, ``excess_a`` ``D0/L_min``
+    (the lowest incremental inductance from ``top_m`` up to the reach: both parts of the
+    max grow with slope at most 1)."""
+    v_th, r_th = v * r_e / (r + r_e), r * r_e / (r + r_e)
+    times, i_m = flux_bound.rise_table(coil, v_th, r_th, peak_s)
+    curve = coil.curve
+    spread = float(curve.psi(top_m)) - float(curve.psi(min(bottom_m, top_m)))
+    tail = flux_bound.tail_excess(curve, float(i_m[-1]), top_m, spread)
+    deltas, cur = tail["table"]
+    terminal = np.maximum(cur, (v + r_e * cur) / (r + r_e))
+
+    def listed(x):
+        return [float(y) for y in x]
+    return {"rise_time_s": listed(times), "rise_current_a": listed((v + r_e * i_m) / (r + r_e)),
+            "eddy_resistance_ohm": r_e, "tail_flux_wb": listed(deltas), "tail_current_a": listed(terminal),
+            "top_a": max(float(terminal[-1]), float((v + r_e * i_m[-1]) / (r + r_e))),
+            "hold_top_a": float(terminal[0]), "excess_a": tail["excess_a"], "l_max_h": tail["l_max_h"]}
+
+
 def _current_mode_hold(d):
     """For a current-mode hold, a function of the cold loops at a branch's top supply giving
     ``(hold top A, bottom A, settle s)`` for :func:`channel_bound_params`.
@@ -343,7 +392,16 @@ def _current_mode_hold(d):
     def hold(cold):
         a_top = cold.v_on / cold.r_on
         i_hi = th.upper_a / low
-        top = np.minimum(a_top, a_top - (a_top - i_hi) * np.exp(-th.delay_s * cold.r_on / cold.inductance))
+        if isinstance(cold.inductance, flux.FluxCoil):
+            # a saturating coil: over the delay the flux rises by at most v_on x delay, so
+            # the top is at most psi^-1(psi(I_hi') + v_on delay / s) at the lowest scale s,
+            # and never above A from below it (docs/design-method.md, "Several channels")
+            curve, s_min = cold.inductance.curve, float(np.min(cold.inductance.scale))
+            rise = float(np.max(cold.v_on)) * th.delay_s / s_min
+            reach = float(np.asarray(curve.current_of(float(curve.psi(i_hi)) + rise)).max())
+            top = np.minimum(a_top, reach)
+        else:
+            top = np.minimum(a_top, a_top - (a_top - i_hi) * np.exp(-th.delay_s * cold.r_on / cold.inductance))
         return float(np.max(top)), float(th.upper_a / high), settle
     return hold
 
@@ -716,27 +774,28 @@ def rail_curves(result: SystemResult, points: int = 6000) -> list[dict]:
 
 def _refuse(system: System, ch) -> None:
     """What the rail's current bound is made for: a linear coil (with a moving armature or
-    an eddy term, not both) or a flux-linkage curve (neither; voltage-mode), on one switch
+    an eddy term, not both) or a flux-linkage curve (no armature; voltage-mode with or
+    without an eddy term, or a hysteretic current-mode hold), on one switch
     or a full bridge, a voltage-mode (fixed, supply-table or closed-loop) or current-mode hold and one
     switch. Anything else is refused in one line."""
     d = ch.drive
     why = None
     if d.coil.flux_current and d.armature is not None:
         key, why = "armature", "a moving armature with a flux-linkage curve"
-    elif d.coil.flux_current and d.hold.mode == "current":
-        key, why = "hold.mode", "a current-mode hold with a flux-linkage curve"
+    elif d.coil.flux_current and d.hold.mode == "current" and d.hold.control != "hysteretic":
+        key, why = "hold.control", "a fixed off-time current-mode hold with a flux-linkage curve"
     elif d.hold.mode == "latch":
         key, why = "hold.mode", "a latching coil"
-    elif d.coil.eddy_resistance and (d.coil.flux_current or d.armature is not None or d.hold.mode == "current"):
-        key, why = "coil.eddy_resistance", ("an eddy-current term with a flux-linkage curve, an [armature] "
-                                            "or a current-mode hold")
+    elif d.coil.eddy_resistance and (d.armature is not None or d.hold.mode == "current"):
+        key, why = "coil.eddy_resistance", "an eddy-current term with an [armature] or a current-mode hold"
     elif d.supply.boosted:
         key, why = "supply.boost", "a boosted peak"
     if why is not None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
                          "in a system yet; expected a linear coil (with an [armature] or an eddy term, not both) "
-                         "or a flux-linkage curve (no [armature], no eddy term), one switch or a full bridge and a "
-                         "voltage-mode fixed, supply-table or closed-loop hold, or a current-mode hold")
+                         "or a flux-linkage curve (no [armature]; an eddy term under a voltage-mode hold), one "
+                         "switch or a full bridge and a voltage-mode fixed, supply-table or closed-loop hold, or a "
+                         "current-mode hold (hysteretic on a curve)")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:
