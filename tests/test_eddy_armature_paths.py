@@ -195,8 +195,8 @@ def test_mixed_hold_and_release_against_radau(tmp_path):
         assert w.events[name] == pytest.approx(_last(log, name), rel=RTOL), name
 
 
-def test_design_and_simulate_take_both_paths(tmp_path):
-    """The drive files the checks above model run end to end (exit 0, finite JSON):
+def test_design_runs_both_paths(tmp_path):
+    """The drive files the checks above model run through design (exit 0, finite JSON):
     the bridge's mixed hold, and split decay with a late bypass on the locker latch."""
     path, _ = _mixed_eddy(tmp_path)
     late = tmp_path / "late.toml"
