@@ -1234,13 +1234,6 @@ def _eddy_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel, swit
         raise InputError(source, "hold.regulation", f"\"closed_loop\" with {what} and a "
                          "flux-linkage curve (coil.flux_current) is not supported yet: use "
                          "\"fixed\" or \"supply_table\", or one of the two coil terms")
-    if switch.topology == "full_bridge" and hold.fast_fraction > 0 and armature is not None:
-        raise InputError(source, "hold.fast_fraction", f"mixed decay with {what} and [armature] on a "
-                         "full bridge is not supported yet: leave it out (slow decay in the hold)")
-    if freewheel.split_decay and freewheel.bypass_lead < 0 and armature is not None:
-        raise InputError(source, "freewheel.bypass_lead", f"a bypass that opens after the final "
-                         f"turn-off with {what} and [armature] is not supported yet: open it at or "
-                         "before the turn-off (bypass_lead >= 0)")
 
 
 def _mechanics_currents(arm: Armature, coil: Coil) -> dict[str, float]:

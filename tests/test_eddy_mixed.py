@@ -217,19 +217,6 @@ def test_design_simulate_and_check_with_mixed_decay(tmp_path):
     check_synthetic(tmp_path, path)
 
 
-def test_with_an_armature_it_is_refused_in_one_line(tmp_path):
-    from conftest import EXAMPLES
-    from test_eddy_coil import _example_drive
-
-    path = _example_drive(tmp_path, 'eddy_resistance = "300 ohm"', EXAMPLES / "dosing-valve-bridge-24v.toml")
-    text = path.read_text().replace('frequency = "20 kHz"', 'frequency = "20 kHz"\nfast_fraction = 0.3')
-    path.write_text(text + "\n[armature]\ninductance_open = \"69 mH\"\ninductance_closed = \"90 mH\"\n"
-                    "stroke = \"0.5 mm\"\nmass = \"5 g\"\nspring_preload = \"2 N\"\nspring_rate = \"1 N/mm\"\n")
-    r = run_cli("design", str(path))
-    line = r.stderr.strip()
-    assert r.returncode == 2 and "\n" not in line and "hold.fast_fraction" in line and "armature" in line, line
-
-
 def test_firmware_in_the_loop_with_mixed_decay(tmp_path):
     """The compiled driver (gcc) runs the mixed-decay hold with the eddy term in the loop
     (its ``coil_port_fast_end`` count ends each fast part; the sensed current is the

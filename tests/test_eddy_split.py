@@ -43,15 +43,18 @@ def _split_eddy(tmp_path, lead=None):
     return path
 
 
-def test_a_late_bypass_with_an_armature_is_refused_in_one_line(tmp_path):
+def test_a_late_bypass_with_an_armature_designs(tmp_path):
+    """No longer refused: the moments are checked against scipy in
+    tests/test_eddy_armature_paths.py; here the file runs through design."""
     path = _split_eddy(tmp_path, "-5 us")
     path.write_text(path.read_text() + "\n[armature]\ninductance_open = \"69 mH\"\ninductance_closed = "
                     "\"90 mH\"\nstroke = \"0.5 mm\"\nmass = \"5 g\"\nspring_preload = \"2 N\"\n"
                     "spring_rate = \"1 N/mm\"\n")
-    r = run_cli("design", str(path))
-    line = r.stderr.strip()
-    assert r.returncode == 2 and "\n" not in line and "freewheel.bypass_lead" in line, line
-    assert "eddy" in line and "armature" in line and "not supported" in line, line
+    r = run_cli("design", str(path), "--json")
+    assert r.returncode in (0, 1) and not r.stderr, r.stderr   # 1: the toy plunger fails checks
+    doc = json.loads(r.stdout)
+    assert doc["release"]["time_s"] > 0 and doc["armature"]["opened_corners"] > 0
+    assert any(c["name"] == "bypass_timing" and not c["ok"] for c in doc["checks"]), "the late bypass"
 
 
 def test_design_and_simulate_take_both_paths(tmp_path):
