@@ -68,7 +68,8 @@ def test_firmware_passes_check(tmp_path, firmware, supply, coil_temp):
     assert not [e for e in cap.events if e.kind == EventKind.FAULT]
     r = run_cli("check", str(out), str(DEMO), "--json")
     doc = json.loads(r.stdout)
-    assert r.returncode == 0, {i["name"]: (i["status"], i["detail"]) for i in doc["items"]}
+    assert r.returncode == 0, {i["name"]: (i["status"], i["detail"]) for i in doc["items"]
+                               if i["status"] not in ("pass", "info")}
     assert {i["name"] for i in doc["items"]} >= {"pull_in_time", "peak_duration", "hold_mean", "release_time"}
 
 

@@ -551,8 +551,12 @@ def check_capture(capture: Capture, design, tolerances: Tolerances | None = None
                           na_reason=eddy_na if switch_eddy else None if resolved else
                           f"{spp:.3g} samples per PWM period (< 10): the sample rate cannot resolve the ripple",
                           numbers=numbers))
+        # timed from the OFF event: a voltage-mode hold's firmware (the reference driver)
+        # opens the switch at its next conversion, up to one PWM period after the event
+        # (a current-mode driver opens it in the tick that sends OFF)
+        latency = 0.0 if from_waveform or design.hold.current_mode is not None else 1.0 / f_hold
         items.append(_row("release_time", "s", [x.release_time_s for x in acts], pred["release_time_s"],
-                          tol.release_time, res_floor("release_resolution_s"),
+                          tol.release_time, res_floor("release_resolution_s") + latency,
                           na_reason="sense under the switch: the release decay is invisible" if sense_switch else None,
                           extra=f" (to {drive.release.current:.4g} A)", numbers=numbers))
     extra = meta.extra if isinstance(meta.extra, dict) else {}
