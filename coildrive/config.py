@@ -1229,13 +1229,6 @@ def _eddy_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel, swit
     if not coil.eddy_resistance:
         return
     what = "an eddy-current term (coil.eddy_resistance / eddy_time_constant)"
-    if hold.regulation == "closed_loop" and coil.flux_current:
-        # each of the loop's duty solves takes the curve's eddy orbit (a few ms), and the
-        # set-point and heating rounds take hundreds of solves: minutes per design even
-        # with the regula falsi of design/loop_duty.py
-        raise InputError(source, "hold.regulation", f"\"closed_loop\" with {what} and a "
-                         "flux-linkage curve (coil.flux_current) is not supported yet: use "
-                         "\"fixed\" or \"supply_table\", or one of the two coil terms")
     if freewheel.split_decay and hold.mode == "current":
         raise InputError(source, "freewheel.split_decay", f"split decay with a current-mode hold "
                          f"and {what} is not supported yet: use mode = \"voltage\" or leave "

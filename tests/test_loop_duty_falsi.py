@@ -6,6 +6,7 @@ checked against scipy's solve_ivp in tests/test_eddy_hold.py)."""
 from __future__ import annotations
 
 import numpy as np
+import pytest
 
 from coildrive.config import load_drive
 from coildrive.design import loop_duty
@@ -55,3 +56,76 @@ def test_coil_path_sample_too(tmp_path):
     top, _ = loop_duty.sample_at(hi, f, lp, False)
     slow = loop_duty._bisect(target, f, lp, False, lo, hi, top)
     np.testing.assert_allclose(fast, slow, rtol=0, atol=1e-10)
+
+
+def test_closed_loop_design_settles_its_sample_against_solve_ivp(tmp_path):
+    """The closed loop on the curve with the eddy term designs (in seconds: the
+    set-point search gallops), and at one operating point (24 V, 40 degC) the settled
+    duty's orbit is a fixed point of scipy's solve_ivp (DOP853, rtol 1e-11) of the
+    switched circuit written here afresh in the magnetising current (Kirchhoff at the
+    branch node: ``L_d(i_m) di_m/dt = R_e (i - i_m)``, ``i = (v + R_e i_m) / (r + R_e)``
+    of the conducting loop, the freewheel diode blocking below zero terminal current),
+    and the sample in the middle of the on-time matches the model's."""
+    from scipy.integrate import solve_ivp
+
+    from coildrive.design import design
+    from coildrive.design.loop_duty import settled_duty
+    from coildrive.model import eddy
+    from test_flux_cycle import Curve
+
+    text = (EXAMPLES / "saturating-valve-24v.toml").read_text().replace(
+        'reference_temp = "20 degC"', 'reference_temp = "20 degC"\neddy_resistance = "400 ohm"'
+    ).replace("[hold]\n", '[hold]\nregulation = "closed_loop"\n', 1)
+    path = tmp_path / "loop.toml"
+    path.write_text(text)
+    d = design(load_drive(path))
+    assert d.hold.regulation == "closed_loop" and d.eddy is not None
+    duty = settled_duty(d, 24.0, 40.0)
+    lp = loop(d.drive, 24.0, 40.0)
+    e = lp.inductance
+    f = d.hold.frequency_hz
+    t_on, t_off = duty / f, (1.0 - duty) / f
+    v, r_on, r_off, v_off, r_e = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, e.resistance))
+    o = eddy.orbit(e, t_on, t_off, v, r_on, r_off, v_off)
+    curve = Curve(d.drive.coil, float(e.magnetising.scale))
+
+    def rhs(on):
+        def fn(_, y):
+            i = (v + r_e * y[0]) / (r_on + r_e) if on else max((r_e * y[0] - v_off) / (r_off + r_e), 0.0)
+            return [r_e * (i - y[0]) / curve.ld(max(y[0], 0.0))]
+        return fn
+
+    def seg(on, y0, t):
+        s = solve_ivp(rhs(on), (0.0, t), [y0], method="DOP853", rtol=1e-11, atol=1e-14)
+        assert s.success, s.message
+        return float(s.y[0, -1])
+
+    a = float(o.i_min)
+    half = seg(True, a, 0.5 * t_on)
+    top = seg(True, half, 0.5 * t_on)
+    back = seg(False, top, t_off)
+    # the orbit returns to itself (scipy solve_ivp; the quadrature agrees within 1e-6)
+    assert back == pytest.approx(a, rel=1e-6), "orbit's lowest magnetising current (solve_ivp)"
+    assert top == pytest.approx(float(o.i_max), rel=1e-6), "orbit's highest (solve_ivp)"
+    sample = (v + r_e * half) / (r_on + r_e)
+    model, _ = loop_duty.sample_at(duty, f, lp, True)
+    assert float(model) == pytest.approx(sample, rel=1e-6), "the loop's sample (solve_ivp)"
+    r = d.hold.closed_loop
+    # the loop settles its reading between the set-point's code and the next
+    assert r.setpoint_code * r.current_lsb_a <= sample <= (r.setpoint_code + 1) * r.current_lsb_a
+
+
+@pytest.mark.parametrize("answer", [3, 10, 11, 12, 17, 500, 4094])
+def test_set_point_search_finds_the_linear_steps_code(answer):
+    # the galloping search against stepping one code at a time, on a monotone "short"
+    from coildrive.design.hold_closed_loop import _lowest_code
+
+    calls = []
+
+    def solve(c):
+        calls.append(c)
+        return c
+
+    code, got = _lowest_code(3, 4094, solve, lambda c: c < answer)
+    assert code == got == answer
+    assert len(calls) <= 9 + 2 * 12
