@@ -128,4 +128,4 @@ def test_set_point_search_finds_the_linear_steps_code(answer):
 
     code, got = _lowest_code(3, 4094, solve, lambda c: c < answer)
     assert code == got == answer
-    assert len(calls) <= 9 + 2 * 12
+    assert len(calls) <= 3 + 2 * 12

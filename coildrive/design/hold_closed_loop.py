@@ -60,7 +60,7 @@ from .turnoff import turn_offs
 
 #: Set-points the search steps one code at a time before it gallops (a high-resolution
 #: channel, or an eddy term's sample far above the mean, may need thousands of codes).
-_LINEAR_CODES = 8
+_LINEAR_CODES = 2
 
 
 def _lowest_code(first: int, last: int, solve, short):
