@@ -1222,20 +1222,6 @@ def _read_table(s: _Section, current_key: str, flux_key: str):
     return columns[0], columns[1]
 
 
-def _eddy_limits(source: str, coil: Coil, hold: Hold, freewheel: Freewheel, switch: Switch,
-                 thermal: Thermal, duty: "Duty | None", supply: Supply,
-                 armature: "Armature | None" = None) -> None:
-    """What an eddy-current term does not yet work with: one line naming the key."""
-    if not coil.eddy_resistance:
-        return
-    what = "an eddy-current term (coil.eddy_resistance / eddy_time_constant)"
-    if hold.regulation == "closed_loop" and coil.flux_current:
-        # each of the loop's duty solves takes the curve's eddy orbit, minutes per design
-        raise InputError(source, "hold.regulation", f"\"closed_loop\" with {what} and a "
-                         "flux-linkage curve (coil.flux_current) is not supported yet: use "
-                         "\"fixed\" or \"supply_table\", or one of the two coil terms")
-
-
 def _mechanics_currents(arm: Armature, coil: Coil) -> dict[str, float]:
     """Currents (A) the mechanics need, for keys a drive file leaves out: pull-in and hold
     are the static force-balance currents at the lowest inductance of the tolerance band
@@ -1820,7 +1806,6 @@ def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_
     merged, origins = _merged(brd.source, fw_board, source, fw_drive)
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
     _check_bridge(source, origins, switch, freewheel, supply, hold)
-    _eddy_limits(source, coil, hold, freewheel, switch, thermal, duty, supply, armature)
     _check_droop(source, coil, switch, supply, armature, hold)
     _check_boost(source, origins, coil, switch, freewheel, supply, hold, pull_in, armature, duty)
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:

@@ -494,16 +494,3 @@ def test_band_search_without_a_fitting_band_matches_every_band(tmp_path):
     assert not np.any(hc._fits(drive, ss.frequency, ss.regulated)), "precondition: no band fits"
     assert np.any(ss.chatter), "precondition: the narrow bands chatter"
     assert hc._size_band(drive, grid, lsb, c0, full) == int(b[hc._pick(drive, ss.frequency, ss.regulated)])
-
-
-def test_a_closed_loop_on_a_curve_with_an_eddy_term_is_refused_in_one_line(tmp_path):
-    """Not yet designed (each duty solve of the loop takes the curve's eddy orbit): one
-    line naming the key, exit 2."""
-    from conftest import EXAMPLES, run_cli
-    from test_eddy_coil import _example_drive
-
-    path = _example_drive(tmp_path, 'eddy_resistance = "400 ohm"', EXAMPLES / "saturating-valve-24v.toml")
-    path.write_text(path.read_text().replace("[hold]\n", '[hold]\nregulation = "closed_loop"\n', 1))
-    r = run_cli("design", str(path))
-    lines = r.stderr.strip().splitlines()
-    assert r.returncode == 2 and len(lines) == 1 and "hold.regulation" in lines[0], r.stderr

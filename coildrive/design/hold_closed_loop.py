@@ -58,6 +58,42 @@ from .supply import supply_checks
 from .timer import timer_for
 from .turnoff import turn_offs
 
+#: Set-points the search steps one code at a time before it gallops (a high-resolution
+#: channel, or an eddy term's sample far above the mean, may need thousands of codes).
+_LINEAR_CODES = 2
+
+
+def _lowest_code(first: int, last: int, solve, short):
+    """``(code, solve(code))``: the lowest code from ``first`` (at most ``last``) whose
+    solve is no longer ``short``, stepping one code at a time for :data:`_LINEAR_CODES`
+    codes, then doubling the step and bisecting back (the weakest hold's mean rises
+    with the set-point)."""
+    code = first
+    got = solve(code)
+    for _ in range(_LINEAR_CODES):
+        if not short(got) or code >= last:
+            return code, got
+        code += 1
+        got = solve(code)
+    if not short(got) or code >= last:
+        return code, got
+    lo, step = code, 1   # lo: short
+    while True:
+        hi = min(lo + step, last)
+        got_hi = solve(hi)
+        if not short(got_hi) or hi >= last:
+            break
+        lo, step = hi, 2 * step
+    while hi - lo > 1:   # lo short, hi not (or the last code)
+        mid = (lo + hi) // 2
+        got_mid = solve(mid)
+        if short(got_mid):
+            lo = mid
+        else:
+            hi, got_hi = mid, got_mid
+    return hi, got_hi
+
+
 def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     """The Design of a closed-loop hold (see the module docstring)."""
     if samples > 0:
@@ -124,14 +160,11 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     first_setpoint = setpoint
     heat_peak = 0.0
     for _ in range(MAX_PEAK_ROUNDS):
-        setpoint = first_setpoint
-        while True:
-            (temps, where, hot, env, lp, d_weak, d_strong, run_low, run_high, heat_power, ss_low,
-             pts) = solve(setpoint, heat_peak)
-            short_of = np.isfinite(d_weak) & (ss_low.mean < drive.hold.current)
-            if not np.any(short_of) or setpoint >= full - 1:
-                break
-            setpoint += 1
+        setpoint, got = _lowest_code(first_setpoint, full - 1, lambda c: solve(c, heat_peak),
+                                     lambda g: bool(np.any(np.isfinite(g[5])
+                                                           & (g[10].mean < drive.hold.current))))
+        (temps, where, hot, env, lp, d_weak, d_strong, run_low, run_high, heat_power, ss_low,
+         pts) = got
         at = dict(coil_temp=env.coil_temp, factors=env.factors())
         first = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor, run_low, f, 0.0, **at)
         pk = plan_peak(drive, env, first)
