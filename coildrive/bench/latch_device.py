@@ -109,8 +109,8 @@ class LatchDevice(VirtualDevice):
 
         kind, on_time = key
         o = self.options
-        t, i, _, _, t_zero, _ = pulse(self._drives[kind], self.supply, self.coil_temp,
-                                      o.resistance_scale, o.inductance_scale, on_time, 2000)
+        t, i, _, _, t_zero, _, _ = pulse(self._drives[kind], self.supply, self.coil_temp,
+                                         o.resistance_scale, o.inductance_scale, on_time, 2000)
         return PulseRun(kind, t, np.abs(i), on_time, {"on": 0.0, "off": on_time, "zero": t_zero})
 
     def _sensed(self, w: PulseRun, t_rel: np.ndarray) -> np.ndarray:

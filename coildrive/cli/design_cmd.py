@@ -128,9 +128,6 @@ def _simulate_latch(drive, v: float, t: float, csv: Path, r_factor: float, l_fac
     from ..design.latch import design_latch, winding_drive
     from ..model.latch_waveform import NotSeated, latch_actuation
 
-
-    if plot is not None:
-        raise InputError("--plot", "", "a latching coil has no plot yet: plot the CSV")
     d = design_latch(drive)
     by = {p.name: p for p in d.latch.pulses}
     for p in by.values():
@@ -150,6 +147,11 @@ def _simulate_latch(drive, v: float, t: float, csv: Path, r_factor: float, l_fac
     status(f"wrote {csv}: {len(w.time)} samples, set pulse {by['set'].time_s * 1e3:.4g} ms (zero at "
            f"{w.events['set_zero'] * 1e3:.4g} ms), reset pulse at {w.events['reset'] * 1e3:.4g} ms for "
            f"{by['reset'].time_s * 1e3:.4g} ms (zero at {w.events['reset_zero'] * 1e3:.4g} ms)")
+    if plot is not None:
+        from ..design.latch_plot import plot_latch_actuation
+        write_atomic(plot, plot_latch_actuation(d, w, f"{drive.name} on {drive.board.name}: simulated at "
+                                                f"{v:g} V, coil {t:g} degC, R x{r_factor:g}, L x{l_factor:g}"))
+        status(f"wrote plot {plot}")
 
 
 @user_errors
@@ -163,7 +165,7 @@ def simulate_command(
     r_factor: float = typer.Option(1.0, "--r-factor", help="Coil resistance factor (1.07 = +7 %)."),
     l_factor: float = typer.Option(1.0, "--l-factor", help="Coil inductance factor."),
     points: int = typer.Option(8, "--points", help="Samples per PWM segment (the peak and the decay get 40x)."),
-    plot: Optional[Path] = typer.Option(None, "--plot", help="Also write a PNG of the actuation (current; gap and velocity with [armature]; phases marked)."),
+    plot: Optional[Path] = typer.Option(None, "--plot", help="Also write a PNG of the actuation (current; gap and velocity with [armature]; phases marked; a latching coil: both pulses, each pulse's switches, the gap with [armature])."),
 ) -> None:
     """Simulate one actuation with the design's peak and hold: on, peak, hold, off, decay."""
     from ..design import actuation, design

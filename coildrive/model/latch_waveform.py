@@ -41,10 +41,14 @@ class NotSeated(ValueError):
 @dataclass(frozen=True)
 class LatchWaveform:
     """The two pulses: ``columns`` maps each CSV column (``time_s`` first, then
-    ``current_a``) to its array; ``events`` the set, reset and zero-current times (s)."""
+    ``current_a``) to its array; ``events`` the set, reset and zero-current times (s).
+    ``gap`` (m, not a CSV column): with a moving armature its gap (0 seated) through the
+    set pulse, 0 while the catch holds it, NaN from the reset pulse on (not modelled);
+    else ``None``."""
 
     columns: dict
     events: dict
+    gap: np.ndarray | None = None
 
     @property
     def time(self) -> np.ndarray:
@@ -61,14 +65,16 @@ class LatchWaveform:
 
 def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_factor: float,
            t_pulse: float, points: int):
-    """One pulse from zero: ``(t, i, on, bus, t_zero)`` relative to its start (s, A, 0/1,
-    the bus while on V) and the time its current reaches zero."""
+    """One pulse from zero: ``(t, i, on, bus, t_zero, release loop, gap)`` relative to its
+    start (s, A, 0/1, the bus while on V), the time its current reaches zero, and with a
+    moving armature its gap (m; 0 through the decay: the catch holds it), else ``None``."""
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
     rel = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
     v, r_on, ind = float(lp.v_on), float(lp.r_on), float(lp.inductance)
     t_on = np.linspace(0.0, t_pulse, points + 1)
+    gap_on = None
     if drive.armature is not None:   # the set pulse moves the armature; config: no droop then
-        t_on, i_on = _seating(drive, lp, l_factor, t_pulse, points, supply, coil_temp)
+        t_on, i_on, gap_on = _seating(drive, lp, l_factor, t_pulse, points, supply, coil_temp)
         bus = np.full(t_on.shape, v)
     elif drive.supply.droops:
         s = drive.supply
@@ -83,13 +89,14 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
     t = np.concatenate([t_on, t_pulse + t_d])
     i = np.concatenate([i_on, i_d])
     on = np.concatenate([np.ones(t_on.size), np.zeros(t_d.size)])
-    return t, i, on, np.concatenate([bus, np.full(t_d.size, supply)]), t_pulse + tz, rel
+    gap = None if gap_on is None else np.concatenate([gap_on, np.zeros(t_d.size)])
+    return t, i, on, np.concatenate([bus, np.full(t_d.size, supply)]), t_pulse + tz, rel, gap
 
 
 def _seating(drive: Drive, lp, l_factor: float, t_pulse: float, points: int, supply: float,
              coil_temp: float):
     """The set pulse with a moving armature (:func:`coildrive.model.armature_sim.simulate`
-    from rest at the open stop): ``(t, i)``. The armature must rest on the seat when the
+    from rest at the open stop): ``(t, i, gap)``. The armature must rest on the seat when the
     pulse ends (the catch then holds it, and the decay is the seated coil's);
     :class:`NotSeated` otherwise."""
     from .armature import params_from_loop
@@ -99,7 +106,7 @@ def _seating(drive: Drive, lp, l_factor: float, t_pulse: float, points: int, sup
     if tr.state != "seated":
         raise NotSeated(f"the armature is not on the seat when the set pulse ends at {supply:g} V, coil "
                          f"{coil_temp:g} degC, so the catch would not hold it")
-    return tr.time, tr.current
+    return tr.time, tr.current, tr.position
 
 
 def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float,
@@ -107,8 +114,8 @@ def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: 
                     l_factor: float = 1.0, points: int = 400) -> LatchWaveform:
     """The set pulse at 0 and the reset pulse at ``interval`` s (``reset_drive``: the drive
     as its winding sees it, :func:`coildrive.design.latch.winding_drive`)."""
-    ts, is_, ons, buses, tz_s, rel_s = pulse(drive, supply, coil_temp, r_factor, l_factor, set_time, points)
-    tr, ir, onr, busr, tz_r, rel_r = pulse(reset_drive, supply, coil_temp, r_factor, l_factor, reset_time,
+    ts, is_, ons, buses, tz_s, rel_s, gap_s = pulse(drive, supply, coil_temp, r_factor, l_factor, set_time, points)
+    tr, ir, onr, busr, tz_r, rel_r, _ = pulse(reset_drive, supply, coil_temp, r_factor, l_factor, reset_time,
                                             points)
     gap = max(interval, tz_s)
     idle_t = np.array([0.5 * (tz_s + gap)]) if gap > tz_s else np.empty(0)
@@ -135,7 +142,9 @@ def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: 
                                               else np.concatenate([other, idle_sw, v_sw]))
         cols = {k: cols[k] for k in ("time_s", "current_a", "reset_current_a", "coil_voltage_v",
                                      "reset_coil_voltage_v", "switch_voltage_v", "reset_switch_voltage_v")}
-    return LatchWaveform(cols, events)
+    gap_all = (None if gap_s is None else
+               np.concatenate([gap_s, np.zeros(n_i), np.full(tr.size, np.nan)]))
+    return LatchWaveform(cols, events, gap_all)
 
 
 def _bridge_columns(drive: Drive, supply: float, time, n_s: int, n_i: int, set_part, reset_part) -> dict:
