@@ -171,3 +171,35 @@ def test_simulate_cli_writes_the_csv(case, tmp_path):
     csv = np.loadtxt(out, delimiter=",", skiprows=1)
     assert np.allclose(csv[:, 0], run.time, rtol=1e-8, atol=0)
     assert np.allclose(csv[:, 1], run.rail, rtol=1e-8, atol=1e-12)
+
+
+@pytest.mark.slow
+def test_emulate_channel_capture_check_over_a_real_pty(tmp_path):
+    """``emulate SYSTEM.toml --channel purge2`` (the full bridge with an eddy term, 30 % fast
+    decay) on the shared timer -> ``capture`` two actuations -> ``check`` against the
+    channel's drive file, each a real subprocess over a real pseudo-terminal. The device runs
+    the channel's own model actuation, so this checks the plumbing (the channel's drive with
+    the shared timer fixed in it reaches the device), not the physics."""
+    import json
+
+    from conftest import run_cli
+    from test_bench_e2e import TIMEOUT, Emulator
+
+    path = _system(tmp_path)
+    drive = tmp_path / "purge-bridge-24v.toml"
+    (timer,) = design_system(load_system(path)).timers
+    with open(tmp_path / "emulate.log", "w") as log:
+        emu = Emulator(path, "--channel", "purge2", "--duration", "30", log=log)
+        try:
+            r = run_cli("capture", emu.path, "--drive", str(drive), "--out", str(tmp_path / "a.cdcap"),
+                        "--actuations", "2", timeout=TIMEOUT)
+        finally:
+            emu.stop()
+    assert r.returncode == 0 and "2 actuation(s)" in r.stderr and " 0 lost frame(s)" in r.stderr, r.stderr
+    said = (tmp_path / "emulate.log").read_text()
+    assert f"channel purge2: hold PWM on the board's shared timer, prescaler {timer['prescaler']}, " \
+           f"period {timer['period_ticks']} counts" in said, said
+    r = run_cli("check", str(tmp_path / "a.cdcap"), str(drive), "--json")
+    rows = {i["name"]: i["status"] for i in json.loads(r.stdout)["items"]}
+    assert r.returncode == 0, rows
+    assert rows["hold_mean"] == rows["release_time"] == rows["link"] == "pass", rows
