@@ -194,3 +194,44 @@ def budget_shapes() -> list[tuple[str, object]]:
         shapes.append((f"demo-valve {control}", example_design(
             "demo-valve", ('frequency = "25 kHz"', f'frequency = "25 kHz"\nmode = "current"\ncontrol = "{control}"'))))
     return shapes
+
+
+def loop_captures(tmp_path: Path, des, runs, hold_time: float = 0.03):
+    """The reference driver of ``des`` written to ``tmp_path/fw`` and compiled with gcc, in
+    the loop of :class:`~coildrive.bench.firmware_device.FirmwareDevice`: for each
+    ``(supply V, coil temperature degC, fault or None)`` of ``runs`` the messages of 2.3
+    device periods (two actuations) as a capture file ``tmp_path/<k>.cdcap``. Returns the
+    ``(path, Capture)`` of each run."""
+    from coildrive.bench.device import DeviceOptions
+    from coildrive.bench.firmware_device import FirmwareDevice
+    from coildrive.codegen.host_build import build_firmware
+    from test_emulator_device import capture_of, run as run_device
+
+    require_tool("gcc")
+    (tmp_path / "fw").mkdir()
+    for name, text in render_driver(des).items():
+        (tmp_path / "fw" / name).write_text(text)
+    lib = build_firmware(tmp_path / "fw", des, cache=tmp_path / "cache")
+    out = []
+    for k, (supply, temp, fault) in enumerate(runs):
+        dev = FirmwareDevice(des, lib, DeviceOptions(supply=supply, coil_temp=temp, fault=fault, noise_codes=1,
+                                                     seed=3, hold_time=hold_time))
+        dev._now = 0.0
+        msgs, _ = run_device(dev, 2.3 * dev.period, step=0.01)
+        path = tmp_path / f"{k}.cdcap"
+        out.append((path, capture_of(msgs, path)))
+    return out
+
+
+def checked_rows(capture: Path, drive: Path | str, coil_temp: float) -> dict:
+    """`coildrive check --json` of ``capture`` against ``drive`` at ``coil_temp`` degC: it
+    must pass (exit 0; the failing rows in the message); its rows by name."""
+    import json
+
+    from conftest import run_cli
+
+    r = run_cli("check", str(capture), str(drive), "--json", "--coil-temp", str(coil_temp))
+    rows = {i["name"]: i for i in json.loads(r.stdout)["items"]}
+    assert r.returncode == 0, {n: (i["status"], i["detail"]) for n, i in rows.items()
+                               if i["status"] not in ("pass", "info")}
+    return rows

@@ -245,38 +245,19 @@ def test_firmware_in_the_loop_seats_it_and_reports_it_stuck(tmp_path):
     process: `check` passes at the nominal point and at the lowest supply with the hottest
     coil of the design (pull-in, seat, hold, the fast release); stuck (no dip), the driver
     reports STUCK. Plumbing: the coil model is the design's."""
-    import json
-
-    from conftest import require_tool, run_cli
-    from coildrive.bench.device import DeviceOptions
-    from coildrive.bench.firmware_device import FirmwareDevice
     from coildrive.bench.messages import EventKind, FaultCode
-    from coildrive.codegen.driver import render_driver
-    from coildrive.codegen.host_build import build_firmware
-    from test_emulator_device import capture_of, run as run_device
+    from driver_harness import checked_rows, loop_captures
 
-    require_tool("gcc")
     drive = _drive(tmp_path)
     des = design(drive)
-    (tmp_path / "fw").mkdir()
-    for name, text in render_driver(des).items():
-        (tmp_path / "fw" / name).write_text(text)
-    lib = build_firmware(tmp_path / "fw", des, cache=tmp_path / "cache")
     hot = max(c.coil_temp_c for c in des.corners)
-    for k, (supply, temp, fault) in enumerate([(V_BUS, TEMP, None), (drive.supply.min, hot, None),
-                                               (V_BUS, TEMP, "stuck")]):
-        dev = FirmwareDevice(des, lib, DeviceOptions(supply=supply, coil_temp=temp, fault=fault, noise_codes=1,
-                                                     seed=3, hold_time=0.03))
-        dev._now = 0.0
-        msgs, _ = run_device(dev, 2.3 * dev.period, step=0.01)
-        cap = capture_of(msgs, tmp_path / f"{k}.cdcap")
+    runs = [(V_BUS, TEMP, None), (drive.supply.min, hot, None), (V_BUS, TEMP, "stuck")]
+    for (supply, temp, fault), (path, cap) in zip(runs, loop_captures(tmp_path, des, runs)):
         if fault:
             faults = [e.value for e in cap.events if e.kind == EventKind.FAULT]
             assert faults and set(faults) == {int(FaultCode.STUCK)}, faults
             continue
-        r = run_cli("check", str(tmp_path / f"{k}.cdcap"), drive.source, "--json", "--coil-temp", str(temp))
-        rows = {i["name"]: i for i in json.loads(r.stdout)["items"]}
-        assert r.returncode == 0, {n: (i["status"], i["detail"]) for n, i in rows.items()}
+        rows = checked_rows(path, drive.source, temp)
         assert rows["seated_time"]["status"] == "pass" and rows["release_time"]["status"] == "pass"
 
 
@@ -317,16 +298,8 @@ def test_firmware_in_the_loop_with_mixed_decay(tmp_path):
     the bus, the driver's ``coil_port_fast_end``) and the armature in the loop: `check`
     passes at the lowest supply with the hottest coil (pull-in, seat, the mixed hold's
     mean, the fast release). Plumbing: the coil model is the design's."""
-    import json
+    from driver_harness import checked_rows, loop_captures
 
-    from conftest import require_tool, run_cli
-    from coildrive.bench.device import DeviceOptions
-    from coildrive.bench.firmware_device import FirmwareDevice
-    from coildrive.codegen.driver import render_driver
-    from coildrive.codegen.host_build import build_firmware
-    from test_emulator_device import capture_of, run as run_device
-
-    require_tool("gcc")
     plain = _drive(tmp_path)
     path = tmp_path / "mixed.toml"
     path.write_text(Path(plain.source).read_text().replace(
@@ -334,17 +307,7 @@ def test_firmware_in_the_loop_with_mixed_decay(tmp_path):
     drive = load_drive(path)
     assert drive.hold.fast_fraction == 0.3
     des = design(drive)
-    (tmp_path / "fw").mkdir()
-    for name, text in render_driver(des).items():
-        (tmp_path / "fw" / name).write_text(text)
-    lib = build_firmware(tmp_path / "fw", des, cache=tmp_path / "cache")
     hot = max(c.coil_temp_c for c in des.corners)
-    dev = FirmwareDevice(des, lib, DeviceOptions(supply=drive.supply.min, coil_temp=hot, noise_codes=1,
-                                                 seed=3, hold_time=0.03))
-    dev._now = 0.0
-    msgs, _ = run_device(dev, 2.3 * dev.period, step=0.01)
-    capture_of(msgs, tmp_path / "mixed.cdcap")
-    r = run_cli("check", str(tmp_path / "mixed.cdcap"), str(path), "--json", "--coil-temp", str(hot))
-    rows = {i["name"]: i for i in json.loads(r.stdout)["items"]}
-    assert r.returncode == 0, {n: (i["status"], i["detail"]) for n, i in rows.items()}
+    [(cap, _)] = loop_captures(tmp_path, des, [(drive.supply.min, hot, None)])
+    rows = checked_rows(cap, path, hot)
     assert rows["seated_time"]["status"] == "pass" and rows["release_time"]["status"] == "pass"

@@ -222,28 +222,11 @@ def test_firmware_in_the_loop_with_mixed_decay(tmp_path):
     (its ``coil_port_fast_end`` count ends each fast part; the sensed current is the
     terminal current of the path that conducts, the body diodes' in the fast part):
     `check` passes, the hold's ripple included. Plumbing: the coil model is the design's."""
-    from conftest import require_tool
-    from coildrive.bench.device import DeviceOptions
-    from coildrive.bench.firmware_device import FirmwareDevice
-    from coildrive.codegen.driver import render_driver
-    from coildrive.codegen.host_build import build_firmware
     from coildrive.config import load_drive
     from coildrive.design import design
-    from test_emulator_device import capture_of, run as run_device
+    from driver_harness import checked_rows, loop_captures
 
-    require_tool("gcc")
     path = _mixed_drive(tmp_path)
-    des = design(load_drive(path))
-    (tmp_path / "fw").mkdir()
-    for name, text in render_driver(des).items():
-        (tmp_path / "fw" / name).write_text(text)
-    lib = build_firmware(tmp_path / "fw", des, cache=tmp_path / "cache")
-    dev = FirmwareDevice(des, lib, DeviceOptions(supply=24.0, coil_temp=20.0, noise_codes=1, seed=3,
-                                                 hold_time=0.03))
-    dev._now = 0.0
-    msgs, _ = run_device(dev, 2.3 * dev.period, step=0.01)
-    capture_of(msgs, tmp_path / "mixed.cdcap")
-    r = run_cli("check", str(tmp_path / "mixed.cdcap"), str(path), "--json", "--coil-temp", "20")
-    rows = {i["name"]: i for i in json.loads(r.stdout)["items"]}
-    assert r.returncode == 0, {n: (i["status"], i["detail"]) for n, i in rows.items()}
+    [(cap, _)] = loop_captures(tmp_path, design(load_drive(path)), [(24.0, 20.0, None)])
+    rows = checked_rows(cap, path, 20.0)
     assert rows["hold_ripple"]["status"] == "pass"
