@@ -68,11 +68,11 @@ def test_design_json_returns_the_fast_decays_charge_times_the_bus(tmp_path):
 def test_pump_up_of_a_curve_converges_and_is_the_rlc_for_a_straight_line():
     # Runge-Kutta over the current: 400 steps within 1e-6 of 8,000; a straight-line curve
     # (a linear coil) against the series RLC's closed form (any circuits textbook)
-    from coildrive.model.bridge import _flux_pump_up, pump_up
+    from coildrive.model.bridge import flux_pump_up, pump_up
     from test_flux_ngspice import CURVE_I, _psi
     coil = flux.FluxCoil(flux.curve(tuple(CURVE_I), tuple(_psi(CURVE_I))), np.array([0.85, 1.15]))
     args = (np.array([0.9, 1.4]), 24.0, 22e-6, 26.1, coil, 0.8)
-    a, b = _flux_pump_up(*args), _flux_pump_up(*args, steps=8000)
+    a, b = flux_pump_up(*args), flux_pump_up(*args, steps=8000)
     np.testing.assert_allclose(a.delta_v, b.delta_v, rtol=1e-6)
     np.testing.assert_allclose(a.zero_time, b.zero_time, rtol=1e-6)
     line = flux.FluxCoil(flux.curve((0.0, 1.0, 2.0), (0.0, 0.07, 0.14)), np.array(1.0))

@@ -157,14 +157,14 @@ def pump_up(i0, v1, capacitance, r_off, inductance, v_diode) -> PumpUp:
     * critically damped: ``i = e^(-alpha t) (i0 - alpha (i0 + alpha a) t)``.
 
     A :class:`~coildrive.model.flux.FluxCoil` ``inductance`` (a saturating coil) has no
-    closed form: :func:`_flux_pump_up`; nor has an
+    closed form: :func:`flux_pump_up`; nor has an
     :class:`~coildrive.model.eddy.EddyCoil` (an eddy resistance across the branch):
     :func:`_eddy_pump_up`, where ``i0`` is the magnetising current at the turn-off.
     """
     if isinstance(inductance, EddyCoil):
         return _eddy_pump_up(i0, v1, capacitance, r_off, inductance, v_diode)
     if isinstance(inductance, FluxCoil):
-        return _flux_pump_up(i0, v1, capacitance, r_off, inductance, v_diode)
+        return flux_pump_up(i0, v1, capacitance, r_off, inductance, v_diode)
     i0, v1, c = (np.asarray(x, float) for x in (i0, v1, capacitance))
     r, ind = np.asarray(r_off, float), np.asarray(inductance, float)
     i0, v1, c, r, ind, vd = np.broadcast_arrays(i0, v1, c, r, ind, np.asarray(v_diode, float))
@@ -181,7 +181,7 @@ def pump_up(i0, v1, capacitance, r_off, inductance, v_diode) -> PumpUp:
 PUMP_STEPS = 400
 
 
-def _flux_pump_up(i0, v1, capacitance, r_off, coil: FluxCoil, v_diode, steps: int = PUMP_STEPS,
+def flux_pump_up(i0, v1, capacitance, r_off, coil: FluxCoil, v_diode, steps: int = PUMP_STEPS,
                   i_end=0.0) -> PumpUp:
     """:func:`pump_up` of a saturating coil: ``dpsi/dt = -(v + 2 V_d + R i)`` and
     ``C dv/dt = i``. The current falls monotonically (the loop's voltage always opposes
@@ -230,7 +230,7 @@ def _eddy_pump_up(i0, v1, capacitance, r_off, coil: EddyCoil, v_diode, steps: in
     current is ``i = max(0, (R_e i_m - u) / (R + R_e))`` (the body diodes block once it
     reaches zero), the branch ``dpsi/dt = R_e (i - i_m)`` and the capacitor ``C du/dt = i``.
     The magnetising current falls monotonically (``dpsi/dt < 0`` for ``i_m > 0``), so it is
-    the independent variable from ``i0`` to 0, as in :func:`_flux_pump_up`:
+    the independent variable from ``i0`` to 0, as in :func:`flux_pump_up`:
 
         du/di_m = i L_d(i_m) / (C R_e (i - i_m)),    dt/di_m = L_d(i_m) / (R_e (i - i_m))
 

@@ -139,6 +139,12 @@ class FluxBus:
             self._run[1] = []
         return rec
 
+    def with_record(self, rec: Record) -> "FluxBus":
+        """This circuit answering from ``rec``, a run made elsewhere and long enough for
+        every question (:mod:`coildrive.model.flux_bus_decay`'s, from a turn-off's state)."""
+        self._run[:] = [rec, []]
+        return self
+
 
 #: The last few circuits and their runs: a design asks the same points several questions.
 _CACHE: dict = {}
@@ -260,7 +266,7 @@ def run(fb: FluxBus, phases=None, start: Record | None = None) -> Record:
                     break
                 knot = np.where(up, p[1], p[0])
                 d1 = rates(i1, w1, p)[0] * left
-                theta = _hermite_root(i, i1, n0[0] * left, d1, knot, cross)
+                theta = hermite_root(i, i1, n0[0] * left, d1, knot, cross)
                 part = np.where(cross, theta * left, left)
                 i, w = step(i, w, p, part, weights(part), n0)
                 t = t + part
@@ -284,7 +290,7 @@ def _hermite(y0, y1, d0, d1, s):
             + (s3 - s2) * d1)
 
 
-def _hermite_root(y0, y1, d0, d1, target, where, iterations: int = 8):
+def hermite_root(y0, y1, d0, d1, target, where, iterations: int = 8):
     """``s`` in ``[0, 1]`` where the Hermite interpolant reaches ``target`` (between ``y0``
     and ``y1`` where ``where``; 1 elsewhere): Newton's method on the cubic from the chord's
     root, kept inside the bracket (a step leaving it bisects). Within a step the cubic
@@ -306,12 +312,30 @@ def _hermite_root(y0, y1, d0, d1, target, where, iterations: int = 8):
     return np.where(where, s, 1.0)
 
 
-def _segments(rec: Record):
+def segments(rec: Record):
     """Per step (rows 0 .. M-2): start time, length, ends and end slopes x length of the
     current and the bus."""
     t0, h = rec.t[:-1], np.diff(rec.t, axis=0)
     return (t0, h, rec.i[:-1], rec.i[1:], rec.di[:-1] * h, rec.di[1:] * h,
             rec.v[:-1], rec.v[1:], rec.dv[:-1] * h, rec.dv[1:] * h)
+
+
+def first_crossing(t0, h, y0, y1, d0, d1, target, rising: bool, before=None):
+    """Per point, the first moment (s) a recorded quantity reaches ``target`` (from below
+    when ``rising``, else from above): the first step (rows of :func:`segments`) whose end
+    is at or past it, solved on the step's cubic Hermite interpolant; ``before`` s: only
+    steps that start before it. ``(time s, found)``; where not found the time is that of
+    the last step's end and means nothing."""
+    target = np.broadcast_to(np.asarray(target, float), np.shape(y0)[1:])
+    hit = ((y1 >= target) if rising else (y1 <= target)) & (h > 0)
+    if before is not None:
+        hit = hit & (t0 < before)
+    found = hit.any(axis=0)
+    m = np.argmax(hit, axis=0)
+    cols = np.arange(target.size).reshape(target.shape)
+    pick = (m, cols) if target.ndim else (m,)
+    s = hermite_root(y0[pick], y1[pick], d0[pick], d1[pick], target, found)
+    return t0[pick] + s * h[pick], found
 
 
 def rise_time(i_target, fb: FluxBus) -> np.ndarray:
@@ -320,22 +344,15 @@ def rise_time(i_target, fb: FluxBus) -> np.ndarray:
     current)."""
     target = np.broadcast_to(np.asarray(i_target, float), fb.v_s.shape)
     rec = fb.record(i_need=target)
-    t0, h, y0, y1, d0, d1 = _segments(rec)[:6]
-    hit = (y1 >= target) & (h > 0)
-    any_hit = hit.any(axis=0)
-    m = np.argmax(hit, axis=0)
-    cols = np.arange(target.size).reshape(target.shape)
-    pick = (m, cols) if target.ndim else (m,)
-    s = _hermite_root(y0[pick], y1[pick], d0[pick], d1[pick], target, any_hit)
-    out = t0[pick] + s * h[pick]
-    return np.where(target <= 0, 0.0, np.where(any_hit, out, np.inf))
+    t, found = first_crossing(*segments(rec)[:6], target, rising=True)
+    return np.where(target <= 0, 0.0, np.where(found, t, np.inf))
 
 
 def state(t, fb: FluxBus) -> tuple[np.ndarray, np.ndarray]:
     """``(i A, v V)`` at ``t`` s after switch-on (the run's last state past its horizon, the
     steady state to ``e^-25``); for a circuit of one point ``t`` may be any array."""
     rec = fb.record(t_need=t)
-    t0, h, i0, i1, di0, di1, v0, v1, dv0, dv1 = _segments(rec)
+    t0, h, i0, i1, di0, di1, v0, v1, dv0, dv1 = segments(rec)
     if fb.v_s.ndim == 0:       # one point: ``t`` of any shape (a waveform's samples)
         t = np.asarray(t, float)
         pick = (np.clip(np.searchsorted(rec.t[1:-1], t, side="right"), 0, h.shape[0] - 1),)
@@ -360,7 +377,7 @@ def lowest_bus(t_end, fb: FluxBus) -> tuple[np.ndarray, np.ndarray]:
     ``t_end``."""
     t_end = np.broadcast_to(np.asarray(t_end, float), fb.v_s.shape)
     rec = fb.record(t_need=t_end)
-    t0, h, _, _, _, _, v0, v1, d0, d1 = _segments(rec)
+    t0, h, _, _, _, _, v0, v1, d0, d1 = segments(rec)
     rows = max(int(np.max(np.sum(t0 <= t_end, axis=0))), 1)     # the steps that start by t_end
     t0, h, v0, v1, d0, d1 = (x[:rows] for x in (t0, h, v0, v1, d0, d1))
     # the cubic's derivative a s^2 + b s + c0 on [0, 1]; its roots are the candidates

@@ -35,7 +35,7 @@ import dataclasses
 import numpy as np
 
 from . import flux_bus
-from .bridge import _flux_pump_up
+from .bridge import flux_pump_up
 from .bus_decay import FastDecay
 from .flux import FluxCoil
 
@@ -83,27 +83,20 @@ def _record(i0, v0, v_s, r_s, c, r, coil: FluxCoil, v_d):
         rec = flux_bus.run(fb, [(n, h)], rec)
     if np.any(np.min(rec.i, axis=0) > 0.0):
         raise ArithmeticError("the fast decay's current did not reach zero")
-    fb._run.extend([rec, []])
-    return fb, rec
+    return fb.with_record(rec), rec
 
 
 def _fall(rec, target):
     """Time (s) the current first falls to ``target`` A (per point; 0 where it starts at or
     below it): the cubic Hermite interpolant of the first step that reaches it."""
-    t0, h, y0, y1, d0, d1 = flux_bus._segments(rec)[:6]
-    target = np.broadcast_to(np.asarray(target, float), y0.shape[1:])
-    hit = (y1 <= target) & (h > 0)
-    m = np.argmax(hit, axis=0)
-    cols = np.arange(target.size).reshape(target.shape)
-    pick = (m, cols) if target.ndim else (m,)
-    s = flux_bus._hermite_root(y0[pick], y1[pick], d0[pick], d1[pick], target, hit.any(axis=0))
-    return np.where(rec.i[0] <= target, 0.0, t0[pick] + s * h[pick])
+    t, _ = flux_bus.first_crossing(*flux_bus.segments(rec)[:6], target, rising=False)
+    return np.where(rec.i[0] <= target, 0.0, t)
 
 
 def _charge(rec, t_end):
     """``int_0^t_end i dt`` (C, per point): each step's Hermite cubic integrated exactly
     (``h ((y0 + y1)/2 + (d0 - d1)/12)``), the step holding ``t_end`` up to it."""
-    t0, h, y0, y1, d0, d1 = flux_bus._segments(rec)[:6]
+    t0, h, y0, y1, d0, d1 = flux_bus.segments(rec)[:6]
     full = (t0 + h <= t_end) & (h > 0)
     whole = np.sum(np.where(full, h * (0.5 * (y0 + y1) + (d0 - d1) / 12.0), 0.0), axis=0)
     inside = (t0 < t_end) & (t0 + h > t_end)
@@ -154,7 +147,7 @@ def decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d) -> FastDe
     """:func:`decay` on a supply that cannot sink (an ideal one-way feed, as
     :func:`coildrive.model.bus_decay.decay_no_sink`): with the source until the bus reaches
     ``v_s`` V (the first crossing in the run), then into ``C`` alone, the saturating
-    coil's series RLC circuit of :func:`coildrive.model.bridge._flux_pump_up` (stepped in
+    coil's series RLC circuit of :func:`coildrive.model.bridge.flux_pump_up` (stepped in
     the falling current) down to the drop-out current and to zero. ``bus_max`` is the bus
     when the current stops (or ``v_s``, which a bus that never got there relaxes back
     to)."""
@@ -162,24 +155,20 @@ def decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d) -> FastDe
     fed, rec = _decay(i0, np.minimum(v0, v_s), i_drop, v_s, r_s, c, r, coil, v_d)
     # the bus reaches v_s (u falls to -(v_s + 2 V_d)) before the current stops
     u_s = -(v_s + 2.0 * v_d)
-    t0, h, _, _, _, _, u0, u1, du0, du1 = flux_bus._segments(rec)
-    hit = (u1 <= u_s) & (h > 0) & (t0 < fed.zero_time)
-    reach = hit.any(axis=0) & (v0 < v_s)
-    m = np.argmax(hit, axis=0)
-    cols = np.arange(u_s.size).reshape(u_s.shape)
-    pick = (m, cols) if u_s.ndim else (m,)
-    sa = flux_bus._hermite_root(u0[pick], u1[pick], du0[pick], du1[pick], u_s, reach)
-    t_reach = np.where(reach, t0[pick] + sa * h[pick], 0.0)
+    t0, h, _, _, _, _, u0, u1, du0, du1 = flux_bus.segments(rec)
+    t_u, found = flux_bus.first_crossing(t0, h, u0, u1, du0, du1, u_s, rising=False, before=fed.zero_time)
+    reach = found & (v0 < v_s)
+    t_reach = np.where(reach, t_u, 0.0)
     blocked = reach | (v0 >= v_s)
-    fb = flux_bus.FluxBus(u_s, r_s, c, r, coil, u_s / (r + r_s), [rec, []])
+    fb = flux_bus.FluxBus(u_s, r_s, c, r, coil, u_s / (r + r_s)).with_record(rec)
     i_reach = flux_bus.state(t_reach, fb)[0]
     t_a = np.where(v0 >= v_s, 0.0, np.where(reach, t_reach, fed.zero_time))
     i_a = np.where(v0 >= v_s, i0, np.where(reach, i_reach, 0.0))
     v_a = np.where(blocked, np.maximum(v0, v_s), fed.bus_at_zero)
     q_a = np.where(v0 >= v_s, 0.0, np.where(reach, _charge(rec, t_a), fed.charge))
     i_b = np.where(blocked, i_a, 0.0)
-    full = _flux_pump_up(i_b, v_a, c, r, coil, v_d)
-    to_drop = _flux_pump_up(i_b, v_a, c, r, coil, v_d, i_end=np.minimum(i_drop, i_b))
+    full = flux_pump_up(i_b, v_a, c, r, coil, v_d)
+    to_drop = flux_pump_up(i_b, v_a, c, r, coil, v_d, i_end=np.minimum(i_drop, i_b))
     v_end = np.where(blocked, full.v2, fed.bus_at_zero)
     q_b = np.where(blocked, full.charge, 0.0)
     drop_in_a = (~blocked) | (i_a <= i_drop)
