@@ -291,6 +291,15 @@ def boost_result(drive: Drive, grid: CornerGrid, res, rate: float) -> BoostResul
         end_switch_voltage_v=float(v_sw_end[k_v]))
 
 
+def boost_outputs(drive: Drive, grid: CornerGrid, res, rate: float
+                  ) -> tuple[BoostResult | None, list[Check], list[str]]:
+    """``(result, checks, cautions)`` of a boosted peak (:func:`boost_result`,
+    :func:`boost_checks`, :func:`boost_cautions`; ``None`` and empty lists without a
+    boost), as every hold's design adds them."""
+    b = boost_result(drive, grid, res, rate) if drive.supply.boosted else None
+    return b, boost_checks(drive, b), boost_cautions(b)
+
+
 def boost_checks(drive: Drive, b: BoostResult | None) -> list[Check]:
     """The threshold is reached at every corner and fits the ADC; the boost capacitor stays
     above the main supply until the threshold; with an on/off cycle (``[duty]``) the boost

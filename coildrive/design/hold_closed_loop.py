@@ -38,7 +38,7 @@ from ..model.thermal import settle_temperature
 from . import loop_gains
 from .loop_duty import (MAX_DUTY, MIN_ON_TIME_S, codes_per_amp, reading_range, regulated_duty,
                         settled_duty)
-from .boost import boost_cautions, boost_checks, boost_result, boosted_points, boosted_turn_offs, peak_in_force
+from .boost import boost_outputs, boosted_points, boosted_turn_offs, peak_in_force
 from .checks import base_checks
 from .corners import nominal_point
 from .envelope import envelope, heating_grid, hottest, tolerances
@@ -249,9 +249,9 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     notes += thermal_cautions(thermal)
     sup = drooping_bus(drive, env, res, long_, run_high, thresholds)
     checks += supply_checks(sup)
-    boost = boost_result(drive, env, res_low, board.tick.rate) if drive.supply.boosted else None
-    checks += boost_checks(drive, boost)
-    notes += boost_cautions(boost)
+    boost, boost_rows, boost_notes = boost_outputs(drive, env, res_low, board.tick.rate)
+    checks += boost_rows
+    notes += boost_notes
     points = plot_points(drive, pk, env, nom, res_low, f)
     return Design(drive=drive, pull_in=pull_in, hold=hold, release=release, timer=timer_result,
                   adc=thresholds, duty_table=DutyTable([], [], []), corners=corners, nominal=nominal,

@@ -57,8 +57,7 @@ from .corners import CornerGrid, corner_grid, nominal_point
 from .evaluate import PointResults, release_figures, switch_voltage_peak
 from .figures import (adc_code, adc_thresholds, corners_of, hold_spread, loss_figures, pull_in_result,
                       release_result, saving_figures, slow_hold_drive)
-from .boost import (boost_cautions, boost_checks, boost_result, boosted_points, boosted_turn_offs,
-                    peak_in_force)
+from .boost import boost_outputs, boosted_points, boosted_turn_offs, peak_in_force
 from .diagnostics import rise_check, seat_check
 from .eddy import eddy_result
 from .peak import plan_peak, shortest_peak_current
@@ -465,9 +464,9 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     checks += thermal_checks(drive, pull_in.peak_time_s, thermal)
     sup = drooping_bus(drive, grid, res, pk.long_time, cm.duty, thresholds)
     checks += supply_checks(sup)
-    boost = boost_result(drive, grid, res, board.tick.rate) if drive.supply.boosted else None
-    checks += boost_checks(drive, boost)
-    notes += boost_cautions(boost)
+    boost, boost_rows, boost_notes = boost_outputs(drive, grid, res, board.tick.rate)
+    checks += boost_rows
+    notes += boost_notes
     if thermal is not None and thermal.cycle is not None:
         notes[2] = cycle_caution(thermal)   # the envelope's hot coil is the cycle's
     notes += thermal_cautions(thermal)

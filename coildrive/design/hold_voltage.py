@@ -30,7 +30,7 @@ from ..model.circuit import split_decay
 from ..model.losses import HoldLosses, hold_losses
 from ..model.pwm import coil_heat, pwm_steady_state
 from .diagnostics import rise_check, seat_check
-from .boost import boost_cautions, boost_checks, boost_result, boosted_points, boosted_turn_offs
+from .boost import boost_outputs, boosted_points, boosted_turn_offs
 from .checks import base_checks, cautions, energy_checks, loss_cautions, loss_checks
 from .corners import nominal_point
 from .envelope import supply_codes
@@ -169,9 +169,9 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                         lambda v: adc_code(v / sense.divider, board.adc.reference, board.adc.bits),
                         thresholds.supply_min_code, bridge_bus)
     checks += supply_checks(sup) + bridge_bus_checks(drive, sup)
-    boost = boost_result(drive, env, res_low, board.tick.rate) if drive.supply.boosted else None
-    checks += boost_checks(drive, boost)
-    notes += boost_cautions(boost)
+    boost, boost_rows, boost_notes = boost_outputs(drive, env, res_low, board.tick.rate)
+    checks += boost_rows
+    notes += boost_notes
     if thermal is not None and thermal.cycle is not None:
         notes[2] = cycle_caution(thermal)   # the envelope's hot coil is the cycle's
     notes += thermal_cautions(thermal)
