@@ -52,20 +52,21 @@ def _b(c=C_B, v=V_B):
     return boost_model.boost(v, c, R_ON + R_B, L_COIL)
 
 
-def test_boosted_peak_against_ngspice(tmp_path):
-    b = _b()
-    t_th = float(boost_model.threshold_time(I_TH, b))
-    t_off = t_th * 1.05                  # the low-side switch opens a little after the threshold
-    i_off, v_off = (float(x) for x in boost_model.state(t_off, b))
-    step = t_th / 5000
-    tend = t_off + 0.3 * t_th
-    text = "\n".join([
-        "* boosted peak: boost capacitor, boost switch, coil, low-side switch, freewheel diode",
+def boost_netlist(title: str, coil: list[str], t_off: float, t_th: float, step: float, tend: float,
+                  measures: list[str]) -> str:
+    """The ngspice deck of the boosted peak (voltage-controlled switches with body-diode
+    knees, ngspice manual ch. "Switches"): boost capacitor, boost switch, main supply
+    behind its diode, sense and coil resistance, the coil's lines ``coil`` from node n3 to
+    the drain, the low-side switch opening at ``t_off`` s, the freewheel diode; measures
+    the threshold time, the current before the turn-off and the capacitor at ``t_th``,
+    then ``measures``."""
+    return "\n".join([
+        title,
         f"CB boost 0 {C_B!r} IC={V_B!r}",
-        f"SB boost top gb 0 SWB", knee("BDB", "top", "boost", V_D), "VGB gb 0 DC 1",
+        "SB boost top gb 0 SWB", knee("BDB", "top", "boost", V_D), "VGB gb 0 DC 1",
         f"VMAIN main 0 DC {V_MAIN!r}", knee("BDM", "main", "top", V_D),
         "VM top n1 DC 0", f"RSENSE n1 n2 {R_SENSE!r}", f"RCOIL n2 n3 {R_COIL!r}",
-        f"LCOIL n3 drain {L_COIL!r} IC=0",
+        *coil,
         "S1 drain 0 g1 0 SW1", knee("BD1", "0", "drain", V_D),
         f"VG1 g1 0 PULSE(1 0 {t_off - 0.5e-9!r} 1e-9 1e-9 1 2)",
         knee("BFW", "drain", "top", V_D),
@@ -75,8 +76,20 @@ def test_boosted_peak_against_ngspice(tmp_path):
         f"meas tran tth WHEN i(VM)={I_TH!r} RISE=1",
         f"meas tran ioff FIND i(VM) AT={t_off - 2e-9!r}",
         f"meas tran vcth FIND v(boost) AT={t_th!r}",
-        f"meas tran vsw MAX v(drain) from={t_off + 5e-9!r} to={t_off + 20 * step!r}",
+        *measures,
         "quit 0", ".endc", ".end"]) + "\n"
+
+
+def test_boosted_peak_against_ngspice(tmp_path):
+    b = _b()
+    t_th = float(boost_model.threshold_time(I_TH, b))
+    t_off = t_th * 1.05                  # the low-side switch opens a little after the threshold
+    i_off, v_off = (float(x) for x in boost_model.state(t_off, b))
+    step = t_th / 5000
+    tend = t_off + 0.3 * t_th
+    text = boost_netlist("* boosted peak: boost capacitor, boost switch, coil, low-side switch, freewheel diode",
+                         [f"LCOIL n3 drain {L_COIL!r} IC=0"], t_off, t_th, step, tend,
+                         [f"meas tran vsw MAX v(drain) from={t_off + 5e-9!r} to={t_off + 20 * step!r}"])
     res = run(tmp_path, "boost", text)
     assert_peak(res, b, t_th, step, i_off)
     # ngspice: the switch's voltage after the turn-off, the boost at its end + the freewheel

@@ -18,8 +18,8 @@ from __future__ import annotations
 
 import pytest
 
-from ngspice_run import OPTIONS, knee, run
-from test_boost import C_B, I_TH, L_COIL, R_B, R_COIL, R_ON, R_ROFF, R_SENSE, R_SW, V_B, V_D, V_MAIN
+from ngspice_run import run
+from test_boost import C_B, I_TH, L_COIL, R_B, R_ON, V_B, boost_netlist
 
 from coildrive.model import boost as boost_model
 
@@ -39,24 +39,9 @@ def test_boosted_peak_with_eddy_term_against_ngspice(tmp_path):
     i_off = float(boost_model.terminal(i_m, v_c, b))
     i_m_th = float(boost_model.current(t_th, b))
     step = t_th / 5000
-    text = "\n".join([
-        "* boosted peak, eddy resistance across the coil's inductance",
-        f"CB boost 0 {C_B!r} IC={V_B!r}",
-        "SB boost top gb 0 SWB", knee("BDB", "top", "boost", V_D), "VGB gb 0 DC 1",
-        f"VMAIN main 0 DC {V_MAIN!r}", knee("BDM", "main", "top", V_D),
-        "VM top n1 DC 0", f"RSENSE n1 n2 {R_SENSE!r}", f"RCOIL n2 n3 {R_COIL!r}",
-        "VL n3 n4 DC 0", f"LCOIL n4 drain {L_COIL!r} IC=0", f"REDDY n3 drain {R_E!r}",
-        "S1 drain 0 g1 0 SW1", knee("BD1", "0", "drain", V_D),
-        f"VG1 g1 0 PULSE(1 0 {t_off - 0.5e-9!r} 1e-9 1e-9 1 2)",
-        knee("BFW", "drain", "top", V_D),
-        f".model SWB SW(VT=0.5 VH=0 RON={R_B!r} ROFF={R_ROFF!r})",
-        f".model SW1 SW(VT=0.5 VH=0 RON={R_SW!r} ROFF={R_ROFF!r})",
-        OPTIONS, ".control", f"tran {step!r} {t_off * 1.1!r} 0 {step!r} uic",
-        f"meas tran tth WHEN i(VM)={I_TH!r} RISE=1",
-        f"meas tran ioff FIND i(VM) AT={t_off - 2e-9!r}",
-        f"meas tran vcth FIND v(boost) AT={t_th!r}",
-        f"meas tran imth FIND i(VL) AT={t_th!r}",
-        "quit 0", ".endc", ".end"]) + "\n"
+    text = boost_netlist("* boosted peak, eddy resistance across the coil's inductance",
+                         ["VL n3 n4 DC 0", f"LCOIL n4 drain {L_COIL!r} IC=0", f"REDDY n3 drain {R_E!r}"],
+                         t_off, t_th, step, t_off * 1.1, [f"meas tran imth FIND i(VL) AT={t_th!r}"])
     res = run(tmp_path, "boost_eddy", text)
     # ngspice transient: the terminal current's time to the threshold within 1 % plus one step
     assert abs(res["tth"] - t_th) <= 0.01 * t_th + step, (res["tth"], t_th)
