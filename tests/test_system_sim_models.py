@@ -199,7 +199,14 @@ def test_emulate_channel_capture_check_over_a_real_pty(tmp_path):
     said = (tmp_path / "emulate.log").read_text()
     assert f"channel purge2: hold PWM on the board's shared timer, prescaler {timer['prescaler']}, " \
            f"period {timer['period_ticks']} counts" in said, said
-    r = run_cli("check", str(tmp_path / "a.cdcap"), str(drive), "--json")
-    rows = {i["name"]: i["status"] for i in json.loads(r.stdout)["items"]}
+    r = run_cli("check", str(tmp_path / "a.cdcap"), str(path), "--channel", "purge2", "--json")
+    items = {i["name"]: i for i in json.loads(r.stdout)["items"]}
+    rows = {k: i["status"] for k, i in items.items()}
     assert r.returncode == 0, rows
     assert rows["hold_mean"] == rows["release_time"] == rows["link"] == "pass", rows
+    # against the channel's design on the shared timer, not its drive file's own design
+    ripple = items["hold_ripple"]["predicted"]
+    alone = json.loads(run_cli("check", str(tmp_path / "a.cdcap"), str(drive), "--json").stdout)
+    assert ripple != next(i["predicted"] for i in alone["items"] if i["name"] == "hold_ripple")
+    r = run_cli("check", str(tmp_path / "a.cdcap"), str(drive), "--channel", "purge2")
+    assert r.returncode == 2 and "--channel" in r.stderr and len(r.stderr.strip().splitlines()) == 1, r.stderr

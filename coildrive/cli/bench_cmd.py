@@ -105,11 +105,27 @@ def _print_check(report, console=None) -> None:
     print_verdict(console, report.ok, "check passed", "check FAILED", [i.name for i in report.failed])
 
 
+def _drive_or_channel(path: Path, board: Optional[str], channel: Optional[str]):
+    """The drive ``check`` compares with: the drive file's, or with a system file the
+    channel ``channel``'s with the system's shared timer fixed in it (the design the
+    board's firmware runs; the channel's drive file alone may pick another timer)."""
+    from ..config import load_drive
+    from ..system_file import is_system_file
+
+    if is_system_file(path):
+        from .system_cmd import channel_drive
+        return channel_drive(path, board, channel)
+    if channel is not None:
+        raise InputError("--channel", "", f"{path} is a drive file, not a system file: leave --channel out")
+    return load_drive(path, board)
+
+
 @user_errors
 def check_command(
     capture: Path = typer.Argument(..., help=_CAPTURE_HELP),
-    drive: Path = typer.Argument(..., help="Drive file (TOML) whose design the firmware runs."),
+    drive: Path = typer.Argument(..., help="Drive file (TOML) whose design the firmware runs, or a system file with --channel."),
     board: Optional[str] = typer.Option(None, "--board", "-b", help="Bundled board name or board file; overrides the drive file's board."),
+    channel: Optional[str] = typer.Option(None, "--channel", help="With a system file: the channel (its name) the capture is of, checked against its design on the system's shared timer."),
     supply: Optional[str] = typer.Option(None, "--supply", help='Bus voltage during the capture, e.g. 24 or "24 V" (default: the capture\'s, else the nominal supply).'),
     coil_temp: Optional[str] = typer.Option(None, "--coil-temp", help='Coil temperature during the capture, e.g. 25 or "25 degC" (default: the capture\'s, else the coil\'s reference temperature).'),
     tol_pull_in: Optional[str] = typer.Option(None, "--tol-pull-in", help="Tolerance on the pull-in time (default 0.15 = 15 %)."),
@@ -128,7 +144,6 @@ def check_command(
 ) -> None:
     """Check a capture against the design of DRIVE: a pass/fail table; exit 1 on any fail."""
     from ..bench.check import Tolerances, check_capture
-    from ..config import load_drive
     from ..design import design
 
     overrides = {"pull_in_time": _fraction(tol_pull_in, "--tol-pull-in"),
@@ -142,7 +157,7 @@ def check_command(
     v = _quantity(supply, "voltage", "--supply")
     t = _quantity(coil_temp, "temperature", "--coil-temp")
     cap = _read(capture, columns, current_scale, sample_interval)
-    drv = load_drive(drive, board)
+    drv = _drive_or_channel(drive, board, channel)
     if drv.latch is not None:
         from ..bench.latch_check import check_latch_capture
         from ..design.latch import design_latch
