@@ -652,6 +652,45 @@ def test_current_mode_bound_never_below_the_simulated_worst(doc_cm):
     assert worst <= bound <= 1.2 * worst, (bound, worst)
 
 
+def test_simulate_runs_current_mode_channels(doc_cm, tmp_path):
+    """``simulate SYSTEM.toml`` with two hysteretic current-mode channels (the CLI end to
+    end, 28 V, cold coil at the low R and L corner): each current-mode channel's hold tops
+    equal the closed form written afresh -- on past the upper threshold for the 3 us
+    comparator delay from ``I_hi``, ``A - (A - I_hi) exp(-delay R_on / L)`` (``A = V/R_on``;
+    copper R(T) by IEC 60028, alpha = 0.00393 /K) -- within 1e-6, its bottoms the lower
+    threshold less the decay over the delay, its switching count the hold's span over the
+    period of those exact exponentials within one, and the rail never above the design's
+    bound (:func:`_rail`, written afresh)."""
+    doc, folder = doc_cm
+    head, data = _sim_csv(tmp_path, folder / "sys.toml", "--hold-time", "0.03")
+    t, rail = data[:, 0], data[:, 1]
+    chans = doc["channels"]
+    assert np.all(rail <= _rail(t, chans, 28.0) * (1 + 1e-9))
+    drv = load_drive(folder / "purge-valve-24v.toml")
+    b, c, fw = drv.board, drv.coil, drv.freewheel
+    r_coil = c.resistance * (1 + 0.00393 * (0.0 - c.reference_temp)) * 0.93
+    r_on = r_coil + drv.switch.on_resistance + b.sense.resistance
+    r_off = r_coil + b.sense.resistance + fw.bypass_resistance
+    ind, a, bb = c.inductance * 0.85, 28.0 / r_on, fw.diode_drop / r_off
+    for ch in chans[4:]:
+        cm = ch["design"]["current_mode"]
+        dl = cm["sense_delay_s"]
+        top = a - (a - cm["upper_a"]) * np.exp(-dl * r_on / ind)
+        bottom = (cm["lower_a"] + bb) * np.exp(-dl * r_off / ind) - bb
+        i = data[:, head.index(f"{ch['name']}_current_a")]
+        on = data[:, head.index(f"{ch['name']}_on")]
+        start = ch["offset_s"] + ch["bound"]["peak_s"]       # the peak's excess gone 12 ms on
+        hold = (t > start + 12e-3) & (t < start + 0.029)
+        # the grid's samples between a channel's own are linear between them: its extremes
+        # are its own samples, the tops at each switch-off and the bottoms at each switch-on
+        assert i[hold].max() == pytest.approx(top, rel=1e-6) and i[hold].min() == pytest.approx(bottom, rel=1e-6)
+        period = (ind / r_on * np.log((a - bottom) / (a - cm["upper_a"])) + dl
+                  + ind / r_off * np.log((top + bb) / (cm["lower_a"] + bb)) + dl)
+        ons = np.count_nonzero((np.diff(on) > 0) & hold[:-1])
+        span = t[hold][-1] - t[hold][0]
+        assert abs(ons - span / period) <= 1.0, (ons, span / period)
+
+
 def test_off_time_on_a_shared_timer_is_refused(tmp_path):
     """A fixed off-time is its timer's own period: on a timer shared by six channels it
     cannot be made, one line naming the channel and the key, exit 2."""

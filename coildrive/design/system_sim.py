@@ -19,6 +19,11 @@ at a step (an eddy term's terminal current at a switching moment) the grid keeps
 after it. It draws its terminal current from the rail while its switch conducts; a full
 bridge's fast decay (all four switches open, the body diodes conducting) returns the
 current to the rail: negative.
+
+A current-mode channel's hold switches on its own thresholds, not on the timer: its peak
+runs as the driver times it (as above), then its hold and release are the current-mode
+actuation (:func:`coildrive.design.hold_current.current_mode_actuation`: the comparator's
+thresholds and delay, exact segments), drawn while its switch conducts.
 """
 
 from __future__ import annotations
@@ -32,6 +37,7 @@ from ..model.circuit import full_bridge, loop, split_decay
 from ..model.shared_pwm import ChannelRun, channel_run
 from ..model.waveform import actuation
 from .firmware import firmware_setting
+from .hold_current import current_mode_actuation
 from .result import SystemResult
 
 
@@ -75,19 +81,14 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
     from ..errors import InputError
     from .core import MAX_WAVEFORM_SAMPLES
 
-    f_max = max(c.design.hold.frequency_hz for c in result.channels)
+    f_max = max(max(c.design.hold.frequency_hz, c.design.hold.current_mode.max_frequency_hz
+                    if c.design.hold.current_mode is not None else 0.0) for c in result.channels)
     samples = len(result.channels) * (2.0 * points * hold_time * f_max + 80.0 * points) * 2
     if not samples <= MAX_WAVEFORM_SAMPLES:
         raise InputError("--hold-time", "", f"{hold_time:g} s of hold on {len(result.channels)} channels "
                          f"at up to {f_max:.6g} Hz with {points} points a segment is about "
                          f"{samples:,.0f} samples, more than the {MAX_WAVEFORM_SAMPLES:,} one run may "
                          "have: shorten --hold-time or lower --points")
-    for c in result.channels:
-        if c.design.hold.mode == "current":
-            raise InputError(c.design.drive.source, "hold.mode",
-                             f"channel {c.name!r}: simulate SYSTEM.toml runs every hold on the shared "
-                             "timer, and a current-mode hold switches on its own thresholds; simulate "
-                             "its drive file alone (coildrive simulate DRIVE.toml)")
     runs, periods, duties, starts = [], [], [], []
     for c in result.channels:
         d = c.design
@@ -96,6 +97,13 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
         period = 1.0 / d.hold.frequency_hz
         periods.append(period)
         duties.append(duty)
+        if d.hold.mode == "current":
+            # its hold switches on its thresholds, not on the timer; its peak as the driver's
+            t_on, t_peak = driver_peak(c.offset_s, peak, period)
+            runs.append(current_mode_actuation(drv, d.hold.thresholds, supply, coil_temp, t_peak,
+                                               hold_time, r_factor, l_factor, points, label=c.name))
+            starts.append(t_on)
+            continue
         if own_waveform(drv):
             t_on, t_peak = driver_peak(c.offset_s, peak, period)
             runs.append(actuation(drv, supply, coil_temp, t_peak, duty, d.hold.frequency_hz, hold_time,
