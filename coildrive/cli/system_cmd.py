@@ -82,7 +82,8 @@ def run_system_simulate(path: Path, board: Optional[str], supply: float, coil_te
     """Every channel's actuation at one operating point as the firmware runs it on the
     shared timer (:mod:`coildrive.design.system_sim`): the CSV has ``time_s``,
     ``current_a`` (the rail's current: each switch's current summed), a
-    ``<name>_current_a`` coil current column and a ``<name>_on`` switch column per channel."""
+    ``<name>_current_a`` coil current column and a ``<name>_on`` switch column per channel,
+    and a drooping rail's ``bus_v``."""
     from ..design.system import design_system
     from ..design.system_sim import simulate_system
 
@@ -94,3 +95,9 @@ def run_system_simulate(path: Path, board: Optional[str], supply: float, coil_te
     status(f"wrote {csv}: {len(run.time)} samples, {len(run.names)} channels {result.stagger_ticks} "
            f"ticks apart, holds on the timers' period starts ({timers}); rail current up to "
            f"{run.rail[k]:.4g} A at {run.time[k] * 1e3:.4g} ms")
+    for name, bus in run.bus.items():
+        j = int(bus.argmin())
+        status(f"{name}: the bus droops behind the source resistance, fed back into the coils: "
+               f"lowest {bus[j]:.4f} V at {run.time[j] * 1e3:.4g} ms")
+    for why in run.stiff:
+        status(why)

@@ -6,7 +6,12 @@ the first channel's) for the peak its firmware picks at the supply; its hold the
 follows the timer's output: on at every period start of the timer it is on (the shared
 timer's, counting from 0 s, the first channel's switch-on), off at its own compare. The
 rail's current is the sum of the switches' currents (a coil's current while its switch
-conducts). Stiff bus: the source resistance's droop is not fed back into the coils.
+conducts, and while it decays through a clamp across its switch, which takes it from the
+rail). On a rail with the system's source resistance and capacitance whose channels are
+all linear coils on one switch with voltage-mode holds and a path across the coil, the
+bus droops and its droop is fed back into the coils, exact between switching moments
+(:func:`coildrive.model.shared_bus.on_bus`; ``SystemRun.bus``); any other rail runs on
+a stiff bus (``SystemRun.stiff`` says why).
 
 A channel with a moving armature, a flux-linkage curve, an eddy-current term or a full
 bridge runs the model's own single-channel actuation
@@ -29,12 +34,13 @@ thresholds and delay, exact segments), drawn while its switch conducts.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
 from ..model.circuit import full_bridge, loop, split_decay
-from ..model.shared_pwm import ChannelRun, channel_run
+from ..model.shared_bus import on_bus
+from ..model.shared_pwm import HOLD_OFF, RELEASE, ChannelRun, channel_run
 from ..model.waveform import actuation
 from .firmware import firmware_setting
 from .hold_current import current_mode_actuation
@@ -48,7 +54,9 @@ class SystemRun:
     an eddy term), switch state ``on`` (0/1), its draw from the rail ``draw`` (A), its
     :class:`~coildrive.model.shared_pwm.ChannelRun` (a linear coil on one switch) or its
     :class:`~coildrive.model.waveform.Waveform` shifted to its switch-on ``start`` (s; module
-    docstring), and the timer period (s) and compare fraction its hold runs at."""
+    docstring), and the timer period (s) and compare fraction its hold runs at; ``bus``:
+    each drooping rail's bus (V) by CSV column name, ``stiff``: why a drooping rail runs
+    stiff, one line each."""
 
     names: list[str]
     time: np.ndarray
@@ -60,16 +68,21 @@ class SystemRun:
     duties: list[float]
     draw: list[np.ndarray]
     start: list[float]
+    bus: dict = field(default_factory=dict)
+    stiff: list = field(default_factory=list)
 
     def to_csv(self) -> str:
         """``time_s``, ``current_a`` (the rail), ``<name>_current_a`` per channel, then
-        ``<name>_on`` (the switch, 0/1) per channel."""
+        ``<name>_on`` (the switch, 0/1) per channel, then each drooping rail's bus (V:
+        ``bus_v``, with several rails ``bus_<its first channel>_v``)."""
         head = ",".join(["time_s", "current_a", *(f"{n}_current_a" for n in self.names),
-                         *(f"{n}_on" for n in self.names)])
+                         *(f"{n}_on" for n in self.names), *self.bus])
         cols = np.column_stack([self.time, self.rail, *self.current])
         ons = np.column_stack(self.on)
-        rows = ("{},{}".format(",".join(f"{x:.9g}" for x in r), ",".join(str(int(x)) for x in o))
-                for r, o in zip(cols, ons))
+        buses = np.column_stack([*self.bus.values()]) if self.bus else np.zeros((len(self.time), 0))
+        rows = ("{},{}{}".format(",".join(f"{x:.9g}" for x in r), ",".join(str(int(x)) for x in o),
+                                 "".join(f",{x:.9g}" for x in b))
+                for r, o, b in zip(cols, ons, buses))
         return head + "\n" + "\n".join(rows) + "\n"
 
 
@@ -90,6 +103,7 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
                          f"{samples:,.0f} samples, more than the {MAX_WAVEFORM_SAMPLES:,} one run may "
                          "have: shorten --hold-time or lower --points")
     runs, periods, duties, starts = [], [], [], []
+    hold_clamp = {}    # a linear one-switch channel whose hold's off-times go through a clamp
     for c in result.channels:
         d = c.design
         drv = d.drive
@@ -113,6 +127,7 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
         lp = loop(drv, supply, coil_temp, r_factor, l_factor)
         rel = loop(drv, supply, coil_temp, r_factor, l_factor, path="release")
         slow = max(0.0, -drv.freewheel.bypass_lead) if split_decay(drv) else 0.0
+        hold_clamp[len(runs)] = drv.freewheel.type == "clamp" and not bool(np.all(lp.bypassed))
         runs.append(channel_run(c.offset_s, peak, duty, period, hold_time, float(lp.v_on),
                                 float(lp.r_on), float(lp.r_off), float(lp.v_off), float(rel.r_off),
                                 float(rel.v_off), float(lp.inductance), slow))
@@ -120,20 +135,56 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
     t = np.unique(np.concatenate([r.samples(points) if isinstance(r, ChannelRun) else r.time + s0
                                   for r, s0 in zip(runs, starts)]))
     current, on, draw = [], [], []
-    for r, s0 in zip(runs, starts):
+    for c, r, s0 in zip(result.channels, runs, starts):
+        clamp = c.design.drive.freewheel.type == "clamp"
         if isinstance(r, ChannelRun):
             i, sw = r.current(t), r.switch_on(t)
+            # a clamp across the switch: the coil's current flows from the rail through it
+            # while it decays through the clamp (the hold's off-times unless bypassed, the release)
+            kind = r.kind_at(t)
+            through = ((kind == RELEASE) | ((kind == HOLD_OFF) & hold_clamp[len(current)])) & (i > 0)
             current.append(i)
             on.append(sw)
-            draw.append(i * sw)
+            draw.append(i * np.maximum(sw, through))
         else:
-            i, sw, back = on_grid(r, s0, t)
+            i, sw, back, bypass = on_grid(r, s0, t)
             current.append(i)
             on.append(sw)
-            draw.append(i * sw - i * back)
+            through = ((sw == 0) & (bypass == 0) & (i > 0)) if clamp else np.zeros(len(t), bool)
+            draw.append(i * np.maximum(sw, through) - i * back)
+    buses, stiff = {}, []
+    for k, rail_row in enumerate(result.rails):
+        if not rail_row.get("source_resistance_ohm"):
+            continue
+        ks = [n for n, c in enumerate(result.channels) if c.name in rail_row["channels"]]
+        why = _stiff_reason([result.channels[n] for n in ks], [runs[n] for n in ks])
+        if why is not None:
+            stiff.append(f"rail {', '.join(rail_row['channels'])}: {why}")
+            continue
+        cur, bus = on_bus(supply, rail_row["source_resistance_ohm"], rail_row["capacitance_f"],
+                          [runs[n] for n in ks], t)
+        for p, n in enumerate(ks):
+            current[n] = cur[p]
+            draw[n] = cur[p] * on[n]
+        buses["bus_v" if len(result.rails) == 1 else f"bus_{rail_row['channels'][0]}_v"] = bus
     rail = np.sum(draw, axis=0)
     return SystemRun([c.name for c in result.channels], t, rail, current, on, runs, periods, duties,
-                     draw, starts)
+                     draw, starts, buses, stiff)
+
+
+def _stiff_reason(channels, runs) -> str | None:
+    """Why a drooping rail's channels run on the stiff bus, or ``None`` when the bus's
+    droop is fed back into them (:func:`coildrive.model.shared_bus.on_bus`: linear coils
+    on one switch, voltage-mode holds, a freewheel path across the coil)."""
+    for c, r in zip(channels, runs):
+        if not isinstance(r, ChannelRun):
+            what = ("a current-mode hold" if c.design.hold.mode == "current" else
+                    "a moving armature, a flux-linkage curve, an eddy term or a full bridge")
+            return f"channel {c.name!r} has {what}: the bus is taken stiff (its droop is the design's)"
+        if c.design.drive.freewheel.type == "clamp":
+            return (f"channel {c.name!r} decays through a clamp across its switch, from the rail: the "
+                    "bus is taken stiff (its droop is the design's)")
+    return None
 
 
 def own_waveform(drive) -> bool:
@@ -153,12 +204,12 @@ def driver_peak(offset: float, peak: float, period: float) -> tuple[float, float
     return n_on * period, (n_end - n_on) * period
 
 
-def on_grid(w, start: float, t: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def on_grid(w, start: float, t: np.ndarray) -> tuple[np.ndarray, ...]:
     """A single-channel :class:`~coildrive.model.waveform.Waveform` switched on at ``start``
     s, on the grid ``t`` (s): its current (A; linear between its samples, after a step at a
-    repeated time, 0 outside the run), its switch state (0/1, the sample at or before) and 1
+    repeated time, 0 outside the run), its switch state (0/1, the sample at or before), 1
     where a full bridge's four switches are all open with current flowing (the fast decay
-    returning it to the rail), else 0."""
+    returning it to the rail), else 0, and split decay's bypass switch (0/1; 0 without one)."""
     tw = w.time + start
     last = np.append(tw[1:] != tw[:-1], True)          # the value after a step
     tw, cur = tw[last], w.current[last]
@@ -170,4 +221,6 @@ def on_grid(w, start: float, t: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.
     if w.switches is not None:
         open_all = np.all([s[last][k] == 0 for s in w.switches.values()], axis=0)
         back = (inside & open_all & (i > 0)).astype(np.int8)
-    return i, sw, back
+    bypass = np.zeros(len(t), np.int8) if w.bypass_on is None else \
+        np.where(inside, w.bypass_on[last][k], 0).astype(np.int8)
+    return i, sw, back, bypass

@@ -197,3 +197,80 @@ def lowest_bus_pwm(v_s: float, r_s: float, c: float, r_on, r_off, v_off, l, on, 
     if v_min < best[0]:
         return v_min, t0 + t_min
     return best[0], best[1]
+
+
+#: Largest condition number of a piece's eigenvector matrix evaluated through the
+#: eigen-decomposition; past it (nearly equal but unequal time constants) each sample is
+#: the matrix exponential itself (scipy.linalg.expm), slower but exact to rounding.
+EIG_CONDITION = 1e8
+
+
+def on_bus(v_s: float, r_s: float, c: float, runs, t) -> tuple[np.ndarray, np.ndarray]:
+    """``(currents, bus)``: the channels' coil currents (A, one row per run) and the bus
+    (V) at the times ``t`` (s, ascending), each channel switched as its
+    :class:`~coildrive.model.shared_pwm.ChannelRun` says (its switching moments are the
+    timer's and its peak's: they do not depend on the bus) but fed from the bus ``v(t)``
+    behind ``r_s`` ohm and ``c`` F from ``v_s`` V instead of a stiff one. While its
+    switch conducts a coil is on the bus (``L di/dt = v - R_on i``); in its hold's
+    off-times and its release it freewheels in its own loop (a path across the coil: a
+    diode, a Zener or a resistor) and draws nothing, down to zero and held there (closed
+    form: the path does not see the bus). Between two switching moments of any channel
+    the coils on the bus and the capacitor are the linear system of the module docstring,
+    solved exactly through its eigen-decomposition (or the matrix exponential where that
+    is ill-conditioned, :data:`EIG_CONDITION`). The bus starts at ``v_s`` (the capacitor
+    charged), every coil at zero before its run's start."""
+    from .shared_pwm import HOLD_OFF, ON
+
+    t = np.asarray(t, float)
+    n = len(runs)
+    cur = np.zeros((n, len(t)))
+    bus = np.full(len(t), float(v_s))
+    moments = np.unique(np.concatenate([r.start for r in runs] + [[t[-1]]]))
+    moments = moments[moments <= t[-1]]
+    state = np.zeros(n)            # each coil's current at the piece's start
+    v = float(v_s)
+    for a_t, b_t in zip(moments[:-1], moments[1:]):
+        lo, hi = np.searchsorted(t, a_t, side="left"), np.searchsorted(t, b_t, side="left")
+        dt = np.append(t[lo:hi] - a_t, b_t - a_t)     # the piece's samples, then its end
+        active, off = [], []
+        for k, r in enumerate(runs):
+            if a_t < r.start[0]:
+                continue
+            kind = r.kind[np.searchsorted(r.start, a_t, side="right") - 1]
+            if kind == ON:
+                active.append(k)
+            else:
+                path = (r.r_off, r.v_off) if kind == HOLD_OFF else (r.r_rel, r.v_rel)
+                off.append((k, path))
+        for k, (r_p, v_p) in off:
+            x = np.maximum((state[k] + v_p / r_p) * np.exp(-dt * r_p / runs[k].ind) - v_p / r_p, 0.0)
+            cur[k, lo:hi], state[k] = x[:-1], x[-1]
+        if active:
+            xs = _solve(v_s, r_s, c, [runs[k].r_on for k in active], [runs[k].ind for k in active],
+                        np.append(state[active], v), dt)
+        else:                       # the capacitor recharges through R_s alone
+            xs = (v_s + (v - v_s) * np.exp(-dt / (r_s * c)))[None, :]
+        for p, k in enumerate(active):
+            cur[k, lo:hi], state[k] = xs[p, :-1], xs[p, -1]
+        bus[lo:hi], v = xs[-1, :-1], float(xs[-1, -1])
+    last = t >= moments[-1]
+    bus[last] = v
+    cur[:, last] = state[:, None]
+    return cur, bus
+
+
+def _solve(v_s, r_s, c, r, l, x0, dt) -> np.ndarray:
+    """The state ``(i..., v)`` of the coils ``r``, ``l`` on the bus from ``x0`` after each
+    of the times ``dt`` (s): rows per state, columns per time."""
+    piece = _piece(v_s, r_s, c, r, l)
+    if np.linalg.cond(piece[1]) <= EIG_CONDITION:
+        out = _evaluate(piece, x0, dt)
+        out[:, dt == 0.0] = np.asarray(x0, float)[:, None]     # the start itself, not rounded
+        return out
+    from scipy.linalg import expm
+
+    a, b = _system(v_s, r_s, c, ["on"] * len(r), r, l, np.zeros(len(r)))
+    m = len(x0)
+    aug = np.zeros((m + 1, m + 1))
+    aug[:m, :m], aug[:m, m] = a, b
+    return np.column_stack([(expm(aug * s) @ np.append(x0, 1.0))[:m] for s in dt])

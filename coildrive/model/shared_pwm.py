@@ -67,6 +67,12 @@ class ChannelRun:
         at_end = (k >= 1) & (t == self.start[kk]) & (self.kind[np.clip(k - 1, 0, None)] == ON)
         return (inside | at_end).astype(np.int8)
 
+    def kind_at(self, t) -> np.ndarray:
+        """The segment's kind (``ON``, ``HOLD_OFF``, ``RELEASE``) at the times ``t`` (s);
+        -1 before the switch-on."""
+        k = np.searchsorted(self.start, np.asarray(t, float), side="right") - 1
+        return np.where(k >= 0, self.kind[np.clip(k, 0, None)], -1)
+
     def edges(self) -> tuple[np.ndarray, np.ndarray]:
         """``(on-edges, off-edges)`` (s) of the switch."""
         k = self.kind
