@@ -228,12 +228,16 @@ def test_energy_balance_of_the_pull_in():
     assert abs(e["cap"]) > 1e-3 * e["source"] and e["r_s"] > 1e-3 * e["source"], "the bus's own terms count"
 
 
-def test_design_simulate_and_emulate(tmp_path):
+@pytest.mark.parametrize("hold", ["", '[hold]\nregulation = "closed_loop"\n'], ids=["fixed", "closed_loop"])
+def test_design_simulate_and_emulate(tmp_path, hold):
     """design --json: the pull-in and the supply figures come from the drooping run
     (slower than on the stiff bus); simulate's bus_v column is the run's; the model's
     virtual device gives a capture that check passes (the emulator shares the design's
-    physics: plumbing, not numbers); firmware in the loop refuses it in one line."""
+    physics: plumbing, not numbers); firmware in the loop refuses it in one line. A
+    closed-loop hold alike: the droop is the peak's (the loop regulates the hold)."""
     drive = _drive_file(tmp_path)
+    if hold:
+        Path(drive).write_text(Path(drive).read_text().replace("[hold]\n", hold, 1))
     out = run_cli("design", drive, "--json")
     assert out.returncode in (0, 1), out.stderr
     doc = json.loads(out.stdout)
@@ -275,10 +279,10 @@ def test_design_simulate_and_emulate(tmp_path):
 
 @pytest.mark.parametrize("old, new, key", [
     ("[hold]\n", '[switch]\ntopology = "full_bridge"\n\n[freewheel]\ntype = "diode"\ndiode_drop = "0.8 V"\n\n[hold]\n', "armature"),
-    ("[hold]\n", '[hold]\nregulation = "closed_loop"\n', "hold.regulation"),
+    ("[hold]\n", '[hold]\nmode = "current"\n', "hold.mode"),
 ])
 def test_what_stays_refused(tmp_path, old, new, key):
-    """One line naming the key, exit 2: a bridge, a regulated hold."""
+    """One line naming the key, exit 2: a bridge, a current-mode hold."""
     path = Path(_drive_file(tmp_path))
     path.write_text(path.read_text().replace(old, new, 1))
     out = run_cli("design", str(path))
