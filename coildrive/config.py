@@ -1477,8 +1477,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     term too), a low-side
     or a high-side switch or a full bridge (the boost switch feeding leg A's high side, the
     release into the main bus: :func:`_check_bridge` says what a bridge takes), a
-    diode/zener/resistor freewheel (split decay too) or a clamp on
-    a low-side switch, a stiff main supply, a PWM
+    diode/zener/resistor freewheel (split decay too) or a clamp across a low-side or a
+    high-side switch, a stiff main supply, a PWM
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
     mode), a peak that ends at its threshold, no moving armature.
     Anything else is refused in one line."""
@@ -1490,9 +1490,6 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     why = None
     if coil.flux_current:
         key, why = "coil.flux_current", "a flux-linkage curve"
-    elif freewheel.type == "clamp" and switch.topology != "low_side":
-        key, why = "freewheel.type", "a clamp across a high-side switch (a clamp on a low-side switch only)"
-        source = fw_origins.get("type", source)
     elif supply.droops:
         key, why = "supply.source_resistance", "a drooping main supply"
     elif hold.mode == "latch":
@@ -1510,8 +1507,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "expected boost left out, or a linear coil (an eddy term too), a low-side or "
                          "high-side switch or a "
                          "full bridge, a "
-                         "diode/zener/resistor freewheel (split decay too; a clamp on a low-side "
-                         "switch), a stiff main supply, a "
+                         "diode/zener/resistor freewheel (split decay too) or a clamp, a stiff "
+                         "main supply, a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time, no "
                          "[armature]")
 
