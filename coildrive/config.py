@@ -1512,7 +1512,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = "supply.source_resistance", ("a drooping main supply on a full bridge (its release "
                                                 "into the drooping bus after a boost is not modelled)")
     elif hold.mode == "latch":
-        key, why = "hold.mode", "a latching coil"
+        key, why = "hold.mode", ("a latching coil (set and reset pulses from the boost would each end at a "
+                                 "current threshold of their own, with the boost switch in the latch "
+                                 "driver and its device: not built yet)")
     elif armature is not None:
         key, why = "armature", "a moving armature"
     elif pull_in.compensate:

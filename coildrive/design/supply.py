@@ -123,7 +123,8 @@ def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.nd
     the hold's period) is run exactly period by period
     (:func:`coildrive.model.supply.hold_from`). A current-mode or a closed-loop hold (its
     switching follows the current, not a fixed duty) and a clamp across the switch (its
-    off-times draw from the bus too) take the floor of the bus instead
+    off-times, or with split decay its release, draw from the bus too) take the floor of
+    the bus instead
     (:func:`coildrive.model.supply.bus_floor` with the coil at most the larger of the
     hand-over current and the hold's top, plus the converter): a bound, lower than the
     bus goes."""
@@ -136,7 +137,7 @@ def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.nd
     i_conv = converter_current(drive, lp.v_on, top)
     floor = bus_model.bus_floor(lp.v_on, s.source_resistance, top + i_conv)
     exact = (drive.hold.mode == "voltage" and drive.hold.regulation != "closed_loop"
-             and not (through_clamp(drive) and not split_decay(drive)))
+             and not through_clamp(drive))
     if not exact:
         return np.minimum(floor, lp.v_on), t_hand, i_hand, HANDOVER_FLOOR
     b = bus_model.bus(lp.v_on - s.source_resistance * i_conv, s.source_resistance, s.capacitance,
