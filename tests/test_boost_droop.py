@@ -174,8 +174,12 @@ def test_hold_from_against_scipy(r_s, c, duty, i0, v_off):
     def on(t, y):
         return [(y[1] - r * y[0]) / ell, ((v_s - y[1]) / r_s - y[0]) / c]
 
-    def off(t, y):
+    def off(t, y):      # freewheeling while the current flows; after it stops, 0 (the diode blocks)
         return [-(r_off * y[0] + v_off) / ell if y[0] > 0 else 0.0, (v_s - y[1]) / r_s / c]
+
+    def zero(t, y):
+        return y[0]
+    zero.terminal, zero.direction = True, -1
     y, best = np.array([i0, v_s]), (v_s, 0.0)
     n_periods = int(6 * max(ell / r, r_s * c) / period) + 20
     for n in range(n_periods):
@@ -190,8 +194,29 @@ def test_hold_from_against_scipy(r_s, c, duty, i0, v_off):
                                 method="bounded", options={"xatol": 1e-13})
             best = min(best, (float(m.fun), float(m.x)), (float(vs[j]), float(ts[j])))
         y = s.y[:, -1]
-        s = solve_ivp(off, (t0 + duty * period, t0 + period), y, method="Radau", rtol=1e-11, atol=1e-12)
+        s = solve_ivp(off, (t0 + duty * period, t0 + period), y, method="Radau", rtol=1e-11, atol=1e-12,
+                      events=zero)
+        if s.status == 1:   # the current reached zero: the bus alone recovers for the rest
+            s = solve_ivp(off, (s.t[-1], t0 + period), [0.0, s.y[1, -1]], method="Radau", rtol=1e-11,
+                          atol=1e-12)
         y = np.array([max(s.y[0, -1], 0.0), s.y[1, -1]])
     # scipy: the lowest bus within 1e-6 of the droop, and when (within a thousandth of a period)
     assert v_s - best[0] == pytest.approx(v_s - low, rel=1e-6), (best, low)
     assert best[1] == pytest.approx(when, abs=1e-3 * period), (best, when)
+
+
+def test_a_run_that_has_not_settled_takes_the_floor(tmp_path, monkeypatch):
+    """A hold whose orbit has not repeated within the run's periods (here cut to 2) takes
+    the floor ``V_s - R_s (top + I_conv)`` where that is lower: the bound, not a figure
+    from a run cut short."""
+    from coildrive.config import load_drive
+    from coildrive.design import design
+    from coildrive.model import supply as bus_model
+
+    drive = load_drive(_droop(tmp_path))
+    full = design(drive).supply
+    monkeypatch.setattr(bus_model, "HOLD_PERIODS_MAX", 2)
+    cut = design(drive).supply
+    assert cut.lowest_bus_v < full.lowest_bus_v
+    # the floor at the lowest supply lies below the hand-over current's drop alone
+    assert cut.lowest_bus_corner.startswith("9 V") and cut.lowest_bus_v <= 9.0 - R_S * cut.handover_current_a

@@ -86,7 +86,8 @@ def steady_current(drive: Drive, lp) -> np.ndarray:
 
 #: How the lowest bus after a boosted peak's hand-over is found (shown in the JSON and docs).
 HANDOVER_PWM = ("the hold's PWM from the hand-over on the drooping bus, exact period by period "
-                "until its orbit repeats (each on-time the bus and coil circuit in closed form)")
+                "until its orbit repeats (each on-time the bus and coil circuit in closed form; "
+                "where it has not within 5000 periods, the floor below)")
 #: ... where the hold's switching is not a fixed PWM, or a clamp draws in its off-times.
 HANDOVER_FLOOR = ("a floor: the source through R_s carries every draw from the hand-over on "
                   "(the coil at most max(hand-over current, hold top), the boost converter)")
@@ -121,7 +122,8 @@ def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.nd
 
     A voltage-mode hold at a fixed duty (fixed or a supply table: ``duty`` at each point,
     the hold's period) is run exactly period by period
-    (:func:`coildrive.model.supply.hold_from`). A current-mode or a closed-loop hold (its
+    (:func:`coildrive.model.supply.hold_from`; where its orbit has not repeated within
+    :data:`~coildrive.model.supply.HOLD_PERIODS_MAX` periods, the floor below). A current-mode or a closed-loop hold (its
     switching follows the current, not a fixed duty) and a clamp across the switch (its
     off-times, or with split decay its release, draw from the bus too) take the floor of
     the bus instead
@@ -142,8 +144,10 @@ def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.nd
         return np.minimum(floor, lp.v_on), t_hand, i_hand, HANDOVER_FLOOR
     b = bus_model.bus(lp.v_on - s.source_resistance * i_conv, s.source_resistance, s.capacitance,
                       lp.r_on, lp.inductance)
-    v_low, when, _ = bus_model.hold_from(b, i_hand, lp.v_on, duty, res.hold.period, lp.r_off, lp.v_off)
-    return v_low, t_hand + when, i_hand, HANDOVER_PWM
+    v_low, when, settled = bus_model.hold_from(b, i_hand, lp.v_on, duty, res.hold.period, lp.r_off, lp.v_off)
+    # where the orbit has not repeated within the run, the floor bounds the rest
+    tail = ~settled & (floor < v_low)
+    return np.where(tail, floor, v_low), t_hand + np.where(tail, 0.0, when), i_hand, HANDOVER_PWM
 
 
 def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_code: int,

@@ -318,8 +318,9 @@ def clamp_hold_ripple_current(ripple) -> np.ndarray:
     return np.asarray(ripple, float) / (2.0 * np.sqrt(3.0))
 
 
-#: Periods after which :func:`hold_from` stops even if the orbit has not repeated yet.
-HOLD_PERIODS_MAX = 200_000
+#: Periods after which :func:`hold_from` stops even if the orbit has not repeated yet (a
+#: coil whose time constant is thousands of periods; the caller bounds the rest).
+HOLD_PERIODS_MAX = 5_000
 #: The orbit has repeated when a period moves the state by less than this, relatively.
 HOLD_SETTLED = 1e-9
 
