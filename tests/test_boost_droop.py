@@ -14,7 +14,9 @@ from it meanwhile (``supply.boost_draw``, default ``boost_power``). References:
   segment (a complex pair, real eigenvalues, a current reaching zero in the off-times):
   the lowest bus within 1e-6 of the droop and its moment;
 * hand-worked numbers: the converter's current at the bus's floor (the quadratic's
-  larger root) and the floor a current-mode hold and a clamp take instead.
+  larger root) and the floor a current-mode hold and a clamp take instead;
+* gcc (strict) builds the reference driver of a passing drooping drive, which runs to the
+  threshold in the loop; its emulated capture passes check (plumbing).
 """
 
 from __future__ import annotations
@@ -220,3 +222,21 @@ def test_a_run_that_has_not_settled_takes_the_floor(tmp_path, monkeypatch):
     assert cut.lowest_bus_v < full.lowest_bus_v
     # the floor at the lowest supply lies below the hand-over current's drop alone
     assert cut.lowest_bus_corner.startswith("9 V") and cut.lowest_bus_v <= 9.0 - R_S * cut.handover_current_a
+
+
+@pytest.mark.compiler
+def test_a_passing_drooping_drive_runs_in_the_loop(tmp_path):
+    """Plumbing (the emulator and the driver share the design's physics): with a 2 mohm
+    source the lowest bus after the hand-over still reads the supply-min code, so the
+    design passes; its emulated capture passes check, and the reference driver that
+    ``firmware-driver`` writes builds (gcc, strict) and ends the peak at the threshold."""
+    from test_boost_high_side import driver_runs_to_threshold, emulated_check_passes
+
+    from coildrive.config import load_drive
+    from coildrive.design import design
+
+    path = _droop(tmp_path, "stiffer", ('source_resistance = "0.05 ohm"', 'source_resistance = "2 mohm"'))
+    d = design(load_drive(path))
+    assert d.ok and {c.name: c for c in d.checks}["supply_droop"].ok
+    emulated_check_passes(tmp_path, path)
+    assert "coil_port_boost" in driver_runs_to_threshold(tmp_path, path)
