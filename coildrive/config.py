@@ -107,6 +107,7 @@ BOUNDS: dict[str, tuple[float, float, str]] = {
     "supply.boost_capacitance_tolerance": (0.0, 0.9, "dimensionless"),
     "supply.boost_resistance": (0.0, 100.0, "resistance"),
     "supply.boost_power": (1e-3, 100e3, "power"),
+    "supply.boost_draw": (0.0, 100e3, "power"),
     "ambient.min": (-75.0, 200.0, "temperature"),
     "ambient.max": (-75.0, 200.0, "temperature"),
     "thermal.resistance": (0.0, 10e3, "thermal_resistance"),
@@ -287,6 +288,10 @@ class Supply:
     capacitor of ``boost_capacitance`` (F, 0 = an ideal source) within
     ``boost_capacitance_tolerance`` (fraction), through ``boost_resistance`` (ohm: the boost
     switch and the capacitor's ESR), recharged at ``boost_power`` (W, 0 = not given).
+    ``boost_draw`` (W) is what the boost converter draws from the main bus while it
+    recharges (-1 = not given: ``boost_power``, a lossless converter fed from the main bus;
+    0: fed from elsewhere): the drooping bus carries it after the peak
+    (:func:`coildrive.design.supply.handover_bus`); :attr:`converter_draw` resolves it.
     """
 
     min: float
@@ -302,6 +307,13 @@ class Supply:
     boost_capacitance_tolerance: float = 0.0
     boost_resistance: float = 0.0
     boost_power: float = 0.0
+    boost_draw: float = -1.0
+
+    @property
+    def converter_draw(self) -> float:
+        """W the boost converter draws from the main bus while it recharges: ``boost_draw``,
+        or ``boost_power`` when it is not given."""
+        return self.boost_power if self.boost_draw < 0 else self.boost_draw
 
     @property
     def boosted(self) -> bool:
@@ -708,7 +720,7 @@ _LATER_FIELDS = (
     (("pull_in",), PullIn, ("current_margin", "settle_time", "compensate")),
     (("supply",), Supply, ("sink", "capacitance", "capacitor_voltage", "source_resistance", "boost",
                            "boost_tolerance", "boost_capacitance", "boost_capacitance_tolerance",
-                           "boost_resistance", "boost_power")),
+                           "boost_resistance", "boost_power", "boost_draw")),
     (("board", "sense"), Sense, ("resistance_tolerance", "gain_tolerance")),
     (("board", "supply_sense"), SupplySense, ("divider_tolerance",)),
     (("switch",), Switch, ("rise_time", "fall_time", "power_rating", "power_derating", "topology")),
@@ -1455,12 +1467,12 @@ def _read_boost(s: "_Section") -> tuple:
     """The ``[supply]`` boost keys, in :class:`Supply`'s order (all 0 without ``boost``)."""
     boost = s.quantity("boost", "voltage", 0.0, nonnegative=True)
     keys = ("boost_tolerance", "boost_capacitance", "boost_capacitance_tolerance", "boost_resistance",
-            "boost_power")
+            "boost_power", "boost_draw")
     if not boost > 0:
         for key in keys:
             if key in s.table:
                 raise s.fail(key, "given without supply.boost, expected the boost voltage too")
-        return (0.0,) * 6
+        return (0.0,) * 6 + (-1.0,)
     cap = s.quantity("boost_capacitance", "capacitance", 0.0, nonnegative=True)
     power = s.quantity("boost_power", "power", 0.0, nonnegative=True)
     if cap > 0 and not power > 0:
@@ -1468,7 +1480,8 @@ def _read_boost(s: "_Section") -> tuple:
                      "expected the charging power (e.g. \"10 W\")")
     return (boost, s.fraction("boost_tolerance", 0.0), cap,
             s.fraction("boost_capacitance_tolerance", 0.0),
-            s.quantity("boost_resistance", "resistance", 0.0, nonnegative=True), power)
+            s.quantity("boost_resistance", "resistance", 0.0, nonnegative=True), power,
+            s.quantity("boost_draw", "power", -1.0, nonnegative=True) if "boost_draw" in s.table else -1.0)
 
 
 def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, freewheel: Freewheel,
@@ -1478,8 +1491,10 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     term too), a low-side
     or a high-side switch or a full bridge (the boost switch feeding leg A's high side, the
     release into the main bus: :func:`_check_bridge` says what a bridge takes), a
-    diode/zener/resistor freewheel (split decay too) or a clamp on
-    a low-side switch, a stiff main supply, a PWM
+    diode/zener/resistor freewheel (split decay too) or a clamp across a low-side or a
+    high-side switch, a stiff or a drooping main supply (the main bus feeds the hold from
+    the hand-over: :func:`coildrive.design.supply.handover_bus`; not with an eddy term or a
+    full bridge), a PWM
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
     mode), a peak that ends at its threshold, no moving armature.
     Anything else is refused in one line."""
@@ -1491,13 +1506,16 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     why = None
     if coil.flux_current:
         key, why = "coil.flux_current", "a flux-linkage curve"
-    elif freewheel.type == "clamp" and switch.topology != "low_side":
-        key, why = "freewheel.type", "a clamp across a high-side switch (a clamp on a low-side switch only)"
-        source = fw_origins.get("type", source)
-    elif supply.droops:
-        key, why = "supply.source_resistance", "a drooping main supply"
+    elif supply.droops and coil.eddy_resistance:
+        key, why = "supply.source_resistance", ("a drooping main supply and an eddy-current term together "
+                                                "(the hold's hand-over onto the bus is a plain coil's)")
+    elif supply.droops and switch.topology == "full_bridge":
+        key, why = "supply.source_resistance", ("a drooping main supply on a full bridge (its release "
+                                                "into the drooping bus after a boost is not modelled)")
     elif hold.mode == "latch":
-        key, why = "hold.mode", "a latching coil"
+        key, why = "hold.mode", ("a latching coil (set and reset pulses from the boost would each end at a "
+                                 "current threshold of their own, with the boost switch in the latch "
+                                 "driver and its device: not built yet)")
     elif armature is not None:
         key, why = "armature", "a moving armature"
     elif pull_in.compensate:
@@ -1511,8 +1529,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "expected boost left out, or a linear coil (an eddy term too), a low-side or "
                          "high-side switch or a "
                          "full bridge, a "
-                         "diode/zener/resistor freewheel (split decay too; a clamp on a low-side "
-                         "switch), a stiff main supply, a "
+                         "diode/zener/resistor freewheel (split decay too) or a clamp, a stiff "
+                         "main supply (or a drooping one: a linear coil on one switch), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time, no "
                          "[armature]")
 

@@ -264,11 +264,6 @@ def _variant(tmp_path, name, old, new, board=None):
 REFUSALS = [
     # (a full bridge designs a boosted peak: tests/test_boost_bridge.py; its own refusals hold)
     ("bridge-current-mode", "[hold]", '[hold]\nmode = "current"\nband = "0.1 A"', "bridge-m32-fast", "hold.mode"),
-    ("clamp-high-side", 'type = "diode"\ndiode_drop = "0.8 V"', 'type = "clamp"\nclamp_voltage = "75 V"',
-     "sourcing-hs-zener",
-     "freewheel.type"),
-    ("droop", 'max = "16 V"', 'max = "16 V"\nsource_resistance = "0.05 ohm"\ncapacitance = "1 mF"', None,
-     "supply.source_resistance"),
     ("settle", "margin = 1.5", 'margin = 1.5\nsettle_time = "1 ms"', None, "pull_in.settle_time"),
     ("low-boost", 'boost = "48 V"', 'boost = "16.5 V"', None, "supply.boost"),
     ("no-power", 'boost_power = "5 W"', "", None, "supply.boost_power"),

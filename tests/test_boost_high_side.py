@@ -18,6 +18,10 @@ and a 15 V Zener) runs from ground up to the node. References:
   (``coildrive.model.high_side``);
 * hand-worked numbers: the switch at the end of the peak sees the boost at full charge
   (48 V + 5 % = 50.4 V) plus the freewheel's 0.9 V + 15 V; the node swings to -15.9 V;
+* ngspice, the same circuit with a clamp from the rail to the node instead of the
+  freewheel path, the peak cut short with the boost switch opening too: the switch's
+  voltage (the clamp's), the node (the main supply less the clamp), the time to the
+  drop-out current and the clamp's energy within 1 %; hand-worked: 9 V - 75 V = -66 V;
 * gcc (``-Wall -Wextra -Werror -pedantic -Wconversion``) builds the reference driver that
   ``firmware-driver`` writes for it (the driver is topology-agnostic but for a bridge).
 """
@@ -51,46 +55,68 @@ def _variant(tmp_path):
     return path
 
 
+def hs_netlist(drive, lp, t_off: float, step: float, t_end: float, freewheel: list[str],
+               measures: list[str], boost_opens: bool = False, v_dm: float = 0.9) -> str:
+    """The boosted peak on the high side as an ngspice netlist: the boost capacitor at its
+    lowest (``C_b`` with its initial charge), the boost switch and the main supply's diode
+    (``v_dm`` V) onto the rail, the high-side switch from the rail to the node (off at
+    ``t_off`` s; the boost switch with it when ``boost_opens``, else on throughout), the
+    coil (``lp``'s copper and inductance) to ground through the sense resistor, the
+    ``freewheel`` elements, then ``measures`` after a ``tran`` of ``t_end`` s."""
+    s, sw, sense = drive.supply, drive.switch, drive.board.sense
+    v_b, c_b = s.boost * (1 - s.boost_tolerance), s.boost_capacitance * (1 - s.boost_capacitance_tolerance)
+    gate = f"PULSE(1 0 {t_off - 0.5e-9!r} 1e-9 1e-9 1 2)"
+    return "\n".join([
+        "* boosted peak, high side: boost capacitor and switch, main supply's diode, high-side "
+        "switch, coil to ground, freewheel",
+        f"CB boost 0 {c_b!r} IC={v_b!r}",
+        "SB boost rail gb 0 SWB", knee("BDB", "rail", "boost", 0.9),
+        f"VGB gb 0 {gate if boost_opens else 'DC 1'}",
+        f"VMAIN main 0 DC {s.min!r}", knee("BDM", "main", "rail", v_dm),
+        "S1 rail node g1 0 SW1", knee("BD1", "node", "rail", 0.9), f"VG1 g1 0 {gate}",
+        "VM node n1 DC 0", f"RCOIL n1 n2 {float(lp.r_coil)!r}", f"LCOIL n2 n3 {float(lp.inductance)!r} IC=0",
+        f"RSENSE n3 0 {sense.resistance!r}", *freewheel,
+        f".model SWB SW(VT=0.5 VH=0 RON={s.boost_resistance!r} ROFF={R_ROFF!r})",
+        f".model SW1 SW(VT=0.5 VH=0 RON={sw.on_resistance!r} ROFF={R_ROFF!r})",
+        OPTIONS, ".control", f"tran {step!r} {t_end!r} 0 {step!r} uic", *measures,
+        "quit 0", ".endc", ".end"]) + "\n"
+
+
+def _slow_corner(drive):
+    """The slow corner's loop (the lowest supply, a 120 degC coil, R +5 %, L +10 %) and
+    the boost at its lowest feeding it."""
+    from coildrive.model import boost as boost_model
+    from coildrive.model.circuit import loop
+
+    s = drive.supply
+    lp = loop(drive, s.min, 120.0, 1.05, 1.10)
+    b = boost_model.boost(s.boost * (1 - s.boost_tolerance), s.boost_capacitance * (1 - s.boost_capacitance_tolerance),
+                          float(lp.r_on) + s.boost_resistance, float(lp.inductance))
+    return lp, b
+
+
 def test_high_side_boosted_peak_against_ngspice(tmp_path):
     from coildrive.config import load_drive
     from coildrive.design.boost import _turn_off_voltage
     from coildrive.model import boost as boost_model
-    from coildrive.model.circuit import loop
     from coildrive.model.high_side import TOPOLOGY
 
     drive = load_drive(_variant(tmp_path))
-    s, sw, sense = drive.supply, drive.switch, drive.board.sense
-    v_b, c_b = s.boost * (1 - s.boost_tolerance), s.boost_capacitance * (1 - s.boost_capacitance_tolerance)
-    lp = loop(drive, s.min, 120.0, 1.05, 1.10)
-    r_coil, ell = float(lp.r_coil), float(lp.inductance)
-    assert float(lp.r_on) == pytest.approx(r_coil + sw.on_resistance + sense.resistance)
-    b = boost_model.boost(v_b, c_b, float(lp.r_on) + s.boost_resistance, ell)
+    sw, sense = drive.switch, drive.board.sense
+    lp, b = _slow_corner(drive)
+    assert float(lp.r_on) == pytest.approx(float(lp.r_coil) + sw.on_resistance + sense.resistance)
     i_th = drive.pull_in.current_margin * drive.pull_in.current
     t_th = float(boost_model.threshold_time(i_th, b))
     t_off = t_th * 1.05                  # the high-side switch opens a little after the threshold
     i_off, v_off = (float(x) for x in boost_model.state(t_off, b))
     step = t_th / 5000
-    text = "\n".join([
-        "* boosted peak, high side: boost capacitor and switch, main supply's diode, high-side "
-        "switch, coil to ground, freewheel from ground",
-        f"CB boost 0 {c_b!r} IC={v_b!r}",
-        f"SB boost rail gb 0 SWB", knee("BDB", "rail", "boost", 0.9), "VGB gb 0 DC 1",
-        f"VMAIN main 0 DC {s.min!r}", knee("BDM", "main", "rail", 0.9),
-        "S1 rail node g1 0 SW1", knee("BD1", "node", "rail", 0.9),
-        f"VG1 g1 0 PULSE(1 0 {t_off - 0.5e-9!r} 1e-9 1e-9 1 2)",
-        "VM node n1 DC 0", f"RCOIL n1 n2 {r_coil!r}", f"LCOIL n2 n3 {ell!r} IC=0",
-        f"RSENSE n3 0 {sense.resistance!r}",
-        knee("BFW", "0", "node", V_FW),
-        f".model SWB SW(VT=0.5 VH=0 RON={s.boost_resistance!r} ROFF={R_ROFF!r})",
-        f".model SW1 SW(VT=0.5 VH=0 RON={sw.on_resistance!r} ROFF={R_ROFF!r})",
-        OPTIONS, ".control", f"tran {step!r} {t_off + 0.3 * t_th!r} 0 {step!r} uic",
+    text = hs_netlist(drive, lp, t_off, step, t_off + 0.3 * t_th, [knee("BFW", "0", "node", V_FW)], [
         f"meas tran tth WHEN i(VM)={i_th!r} RISE=1",
         f"meas tran ioff FIND i(VM) AT={t_off - 2e-9!r}",
         f"meas tran vcth FIND v(boost) AT={t_th!r}",
         "let vd = v(rail) - v(node)",
         f"meas tran vsw MAX vd from={t_off + 5e-9!r} to={t_off + 20 * step!r}",
-        f"meas tran vnode MIN v(node) from={t_off + 5e-9!r} to={t_off + 20 * step!r}",
-        "quit 0", ".endc", ".end"]) + "\n"
+        f"meas tran vnode MIN v(node) from={t_off + 5e-9!r} to={t_off + 20 * step!r}"])
     res = run(tmp_path, "boost-hs", text)
     # ngspice: the time to the threshold, the current at the turn-off and the droop, 1 %
     assert_peak(res, b, t_th, step, i_off)
@@ -102,6 +128,78 @@ def test_high_side_boosted_peak_against_ngspice(tmp_path):
     # ngspice: the node's lowest voltage, the freewheel's below ground, within 1 %
     node = float(TOPOLOGY.node_voltage(v_off, model_sw, 0.0))
     assert res["vnode"] == pytest.approx(node, rel=0.01), (res["vnode"], node)
+
+
+def _clamp_variant(tmp_path, volts: float = 75.0):
+    """:func:`_variant` with a clamp of ``volts`` V across the high-side switch (rail to
+    node) instead of the board's Zener path."""
+    path = tmp_path / f"hs-boost-clamp{volts:g}.toml"
+    path.write_text(_variant(tmp_path).read_text()
+                    + f'\n[freewheel]\ntype = "clamp"\nclamp_voltage = "{volts:g} V"\n')
+    return path
+
+
+def test_high_side_clamp_turn_off_from_the_boost_against_ngspice(tmp_path):
+    """A clamp across the high-side switch: a peak cut short while the boost feeds the rail
+    (the boost switch opening with the high-side one) decays through the clamp, which now
+    draws from the main supply through its diode ``D_m`` (no drop, as the design takes the
+    supply at the rail). ngspice within 1 %: the switch's voltage (the clamp's), the node's
+    lowest (the main supply less the clamp), the time to the drop-out current, the clamp's
+    energy (the coil's and the main supply's)."""
+    from coildrive.config import load_drive
+    from coildrive.design.boost import _turn_off_voltage
+    from coildrive.design.evaluate import release_figures
+    from coildrive.model import boost as boost_model
+    from coildrive.model.high_side import TOPOLOGY
+
+    drive = load_drive(_clamp_variant(tmp_path))
+    v_cl = drive.freewheel.clamp_voltage
+    lp, b = _slow_corner(drive)
+    t_off = 0.8 * float(boost_model.threshold_time(drive.pull_in.current, b))   # cut short
+    i_off, v_off = (float(x) for x in boost_model.state(t_off, b))
+    t_drop, _, energy, _ = (float(x) for x in release_figures(drive, lp, lp, i_off))
+    model_sw = float(_turn_off_voltage(drive, lp, v_off, i_off))
+    node = float(TOPOLOGY.node_voltage(lp.supply, model_sw, 0.0))
+    # hand-worked: the switch holds off the clamp's 75 V; the node 9 V - 75 V below ground
+    assert (model_sw, node) == (pytest.approx(v_cl), pytest.approx(drive.supply.min - v_cl))
+    step = t_off / 2000
+    clamp = ["VCL rail cl DC 0", knee("BCL", "cl", "node", v_cl), "BPW pw 0 V = (v(rail) - v(node)) * i(VCL)"]
+    window = f"from={t_off + 5e-9!r} to={t_off + 20 * step!r}"
+    text = hs_netlist(drive, lp, t_off, step, t_off + 2 * t_drop, clamp, [
+        "let vd = v(rail) - v(node)", f"meas tran vsw MAX vd {window}", f"meas tran vnode MIN v(node) {window}",
+        f"meas tran tdrop WHEN i(VM)={drive.release.current!r} FALL=LAST",
+        f"meas tran eclamp INTEG v(pw) from={t_off!r} to={t_off + 2 * t_drop!r}"], boost_opens=True, v_dm=0.0)
+    res = run(tmp_path, "boost-hs-clamp", text)
+    # ngspice: the switch held at the clamp voltage, the node at the main supply less it, 1 %
+    assert res["vsw"] == pytest.approx(model_sw, rel=0.01), (res["vsw"], model_sw)
+    assert res["vnode"] == pytest.approx(node, rel=0.01), (res["vnode"], node)
+    # ngspice: the time from the turn-off to the drop-out current within 1 % plus two steps
+    assert abs(res["tdrop"] - t_off - t_drop) <= 0.01 * t_drop + 2 * step, (res["tdrop"] - t_off, t_drop)
+    # ngspice: the clamp's energy within 1 %
+    assert res["eclamp"] == pytest.approx(energy, rel=0.01), (res["eclamp"], energy)
+
+
+def test_high_side_clamp_design_and_simulate(tmp_path):
+    """End to end: every turn-off (from the boost too) leaves the switch at the clamp's 75 V
+    and the node at the supply less it (hand-worked: 9 V - 75 V = -66 V at the lowest
+    supply); the ``boost_clamp`` check passes at 75 V and fails at 48 V (under the 50.4 V
+    boost at full charge); simulate's node sits at 12 V - 75 V while the clamp conducts."""
+    out = run_cli("design", str(_clamp_variant(tmp_path)), "--json")
+    d = json.loads(out.stdout)
+    assert d["boost"]["switch_voltage_v"] == pytest.approx(75.0)
+    assert all(o["switch_voltage_v"] == pytest.approx(75.0) for o in d["release"]["turn_offs"])
+    assert d["topology"]["lowest_node_voltage_v"] == pytest.approx(9.0 - 75.0)
+    assert all(c["switch_node_voltage_v"] == pytest.approx(c["supply_v"] - 75.0) for c in d["corners"])
+    assert {c["name"]: c["ok"] for c in d["checks"]}["boost_clamp"]
+    low = json.loads(run_cli("design", str(_clamp_variant(tmp_path, 48.0)), "--json").stdout)
+    assert not {c["name"]: c["ok"] for c in low["checks"]}["boost_clamp"]
+    sim = run_cli("simulate", str(_clamp_variant(tmp_path)), "--supply", "12", "--coil-temp", "40",
+                  "--hold-time", "1 ms", "--csv", str(tmp_path / "s.csv"))
+    assert sim.returncode == 0, sim.stderr
+    rows = np.genfromtxt(tmp_path / "s.csv", delimiter=",", names=True)
+    clamping = (rows["switch_on"] == 0) & (rows["current_a"] > 1e-3)
+    assert clamping.any()
+    assert np.allclose(rows["node_voltage_v"][clamping], 12.0 - 75.0, atol=1e-6)
 
 
 def test_design_header_and_simulate(tmp_path):

@@ -64,16 +64,17 @@ def _elements(drive) -> dict:
 
 
 def _netlist(e: dict, t_peak: float, hold_switch: list[str], measures: list[str], step: float,
-             tend: float, freewheel: list[str] | None = None) -> str:
+             tend: float, freewheel: list[str] | None = None, main: list[str] | None = None) -> str:
     """The boosted peak (boost switch and peak switch on until ``t_peak``), a hold switch
     (``hold_switch``: from ``drain`` to ``hold``), the release through the freewheel diode
-    (or the ``freewheel`` elements from ``drain`` back to ``top``)."""
+    (or the ``freewheel`` elements from ``drain`` back to ``top``); the main supply a stiff
+    ``SUPPLY`` V at ``main`` (or the ``main`` elements that make that node)."""
     return "\n".join([
         "* boosted peak, then a regulated hold from the main supply, then the release",
         f"CB boost 0 {e['c_b']!r} IC={e['v_b']!r}",
         "SB boost top gp 0 SWB", knee("BDB", "top", "boost", e["v_d"]),
         f"VGP gp 0 PULSE(1 0 {t_peak - 0.5e-9!r} 1e-9 1e-9 1 2)",
-        f"VMAIN main 0 DC {SUPPLY!r}", knee("BDM", "main", "top", 0.0),
+        *(main or [f"VMAIN main 0 DC {SUPPLY!r}"]), knee("BDM", "main", "top", 0.0),
         "VM top n1 DC 0", f"RSENSE n1 n2 {e['r_sense']!r}", f"RCOIL n2 n3 {e['r_coil']!r}",
         f"LCOIL n3 drain {e['l_coil']!r} IC=0",
         "SP drain 0 gp 0 SW1", knee("BD1", "0", "drain", e["v_d"]),

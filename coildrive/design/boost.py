@@ -176,6 +176,17 @@ def end_current(drive: Drive, lp) -> np.ndarray:
                     model.highest_current(b, sensed=True))
 
 
+def handover(drive: Drive, lp) -> tuple[np.ndarray, np.ndarray]:
+    """``(s after switch-on, A)`` at each point: when the hold takes over from the boost at
+    its highest (the firmware seeing the highest trip current one conversion late, or the
+    current's first maximum where it never does: 0 s for an ideal boost that never gets
+    there) and the current then, :func:`end_current` (the most the main bus takes on)."""
+    b = _boost(drive, lp, lp.inductance, True)
+    t = _seen(drive, b)
+    t = np.where(np.isfinite(t), t, model.peak_time(b, sensed=True))
+    return np.where(np.isfinite(t), t, 0.0), end_current(drive, lp)
+
+
 def _release_loop(res):
     """The loop a turn-off goes through at the points of ``res``: with split decay the
     release's (the bypass open, the fast path: the higher switch voltage), else the hold's."""

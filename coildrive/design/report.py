@@ -9,6 +9,7 @@ from rich.table import Table
 from ..console import print_cautions, print_verdict
 from ..units import format_si
 from .result import ELEMENT_NAMES, Design
+from .supply import HANDOVER_PWM
 from .thermal_cycle import duration_text
 
 
@@ -183,11 +184,16 @@ def _supply_rows(d: Design) -> list:
         return []
     read = ("" if s.lowest_bus_code is None else
             f"; supply sense reads {s.lowest_bus_code} (supply-min code {s.supply_min_code})")
+    boosted = s.handover_current_a is not None
+    phase = "after the hand-over" if boosted else "in the peak"
+    how = ("" if not boosted else
+           f"; hand-over at {s.handover_current_a:.4g} A, converter {s.converter_draw_w:.4g} W, "
+           + ("the hold's PWM run exactly" if s.lowest_bus_method == HANDOVER_PWM else "a floor (bound)"))
     return [
-        ("lowest bus in the peak", f"{s.lowest_bus_v:.4g} V",
+        (f"lowest bus {phase}", f"{s.lowest_bus_v:.4g} V",
          f"droops {s.droop_v:.4g} V at {s.lowest_bus_corner}, {_ms(s.lowest_bus_time_s)} in "
-         f"(source {s.source_resistance_ohm:.4g} ohm, {s.capacitance_f * 1e6:.4g} uF){read}"),
-        ("capacitor energy in the peak", f"{s.capacitor_energy_j * 1e3:.4g} mJ",
+         f"(source {s.source_resistance_ohm:.4g} ohm, {s.capacitance_f * 1e6:.4g} uF){read}{how}"),
+        (f"capacitor energy {phase}", f"{s.capacitor_energy_j * 1e3:.4g} mJ",
          f"down to the lowest bus, at {s.capacitor_energy_corner}"),
         ("capacitor ripple in the hold", f"{s.ripple_current_a * 1e3:.4g} mA rms",
          f"at {s.ripple_corner} (mean x sqrt(D(1-D)), coil ripple neglected); the hold's bus "

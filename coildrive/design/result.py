@@ -458,7 +458,12 @@ class SupplyResult:
     over the corners; the hold figures are computed on the undrooped supply).
     A full bridge: ``highest_bus_v``, the bus at its highest as a fast decay pushes the
     coil's current back through ``R_s`` (V, over every turn-off, corner and starting bus;
-    ``highest_bus_event``, ``highest_bus_corner``); ``None`` otherwise."""
+    ``highest_bus_event``, ``highest_bus_corner``); ``None`` otherwise.
+    A boosted peak (the main bus feeds only the hold): the lowest bus is after the
+    hand-over, ``lowest_bus_time_s`` still from switch-on; ``handover_current_a`` the coil
+    current there at the lowest bus's corner, ``lowest_bus_method`` how it is found and
+    ``converter_draw_w`` what the boost converter draws from the bus meanwhile (W);
+    ``None`` otherwise."""
 
     source_resistance_ohm: float
     capacitance_f: float
@@ -477,6 +482,9 @@ class SupplyResult:
     highest_bus_v: float | None = None
     highest_bus_event: str | None = None
     highest_bus_corner: str | None = None
+    handover_current_a: float | None = None
+    lowest_bus_method: str | None = None
+    converter_draw_w: float | None = None
 
 
 @dataclass(frozen=True)
@@ -776,6 +784,9 @@ class Design(Verdict):
             out["topology"] = topo
         if self.supply is not None:
             out["supply"] = asdict(self.supply)
+            for key in ("handover_current_a", "lowest_bus_method", "converter_draw_w"):
+                if out["supply"][key] is None:    # a boost's keys only with a boost (older outputs keep their bytes)
+                    del out["supply"][key]
         if self.boost is not None:
             out["boost"] = asdict(self.boost)
         if self.armature is not None:

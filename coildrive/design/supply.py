@@ -84,6 +84,72 @@ def steady_current(drive: Drive, lp) -> np.ndarray:
     return lp.v_on / (lp.r_on + drive.supply.source_resistance)
 
 
+#: How the lowest bus after a boosted peak's hand-over is found (shown in the JSON and docs).
+HANDOVER_PWM = ("the hold's PWM from the hand-over on the drooping bus, exact period by period "
+                "until its orbit repeats (each on-time the bus and coil circuit in closed form; "
+                "where it has not within 5000 periods, the floor below)")
+#: ... where the hold's switching is not a fixed PWM, or a clamp draws in its off-times.
+HANDOVER_FLOOR = ("a floor: the source through R_s carries every draw from the hand-over on "
+                  "(the coil at most max(hand-over current, hold top), the boost converter)")
+
+
+def converter_current(drive: Drive, v_s, i_top) -> np.ndarray:
+    """The most current (A) the boost converter draws from the main bus while it recharges,
+    drawing ``supply.converter_draw`` W (``P``) as the coil draws at most ``i_top`` A: at
+    the bus's floor ``v_f``, the larger root of ``v_f^2 - (V_s - R_s i_top) v_f + R_s P =
+    0`` (below it the source behind ``R_s`` gives more than the coil and the converter
+    take, so the bus never gets there: ``P / v`` <= ``P / v_f``). A source that cannot
+    carry it (no real root) has the bus at the root's double point, half of ``V_s - R_s
+    i_top``."""
+    s = drive.supply
+    p = s.converter_draw
+    head = np.asarray(v_s, float) - s.source_resistance * np.asarray(i_top, float)
+    disc = np.maximum(head**2 - 4.0 * s.source_resistance * p, 0.0)
+    v_f = 0.5 * (head + np.sqrt(disc))
+    return p / np.maximum(v_f, 1e-9)
+
+
+def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.ndarray, str]:
+    """``(lowest bus V, when s after switch-on, hand-over current A, method)`` of a boosted
+    peak on a drooping main supply at the points of ``res`` (the most current): the peak
+    runs from the boost while the main supply's diode blocks, so the main bus sits at the
+    source's ``V_s`` until the hand-over (:func:`coildrive.design.boost.handover`: the
+    boost at its highest, the most current); then it feeds the hold, starting with an
+    on-time at the hand-over current, and the boost converter, fed from the main bus,
+    draws ``supply.converter_draw`` W from the hand-over on (:func:`converter_current`,
+    taken as a constant current at its highest all along: the bus and coil stay a linear
+    circuit with the source ``V_s - R_s I_conv``).
+
+    A voltage-mode hold at a fixed duty (fixed or a supply table: ``duty`` at each point,
+    the hold's period) is run exactly period by period
+    (:func:`coildrive.model.supply.hold_from`; where its orbit has not repeated within
+    :data:`~coildrive.model.supply.HOLD_PERIODS_MAX` periods, the floor below). A current-mode or a closed-loop hold (its
+    switching follows the current, not a fixed duty) and a clamp across the switch (its
+    off-times, or with split decay its release, draw from the bus too) take the floor of
+    the bus instead
+    (:func:`coildrive.model.supply.bus_floor` with the coil at most the larger of the
+    hand-over current and the hold's top, plus the converter): a bound, lower than the
+    bus goes."""
+    s = drive.supply
+    lp = res.loop
+    t_hand, i_hand = boost.handover(drive, lp)
+    top = getattr(res.hold, "terminal_max", None)
+    top = np.maximum(i_hand, res.hold.i_max if top is None else top)
+    top = np.where(np.isfinite(top), top, i_hand)
+    i_conv = converter_current(drive, lp.v_on, top)
+    floor = bus_model.bus_floor(lp.v_on, s.source_resistance, top + i_conv)
+    exact = (drive.hold.mode == "voltage" and drive.hold.regulation != "closed_loop"
+             and not through_clamp(drive))
+    if not exact:
+        return np.minimum(floor, lp.v_on), t_hand, i_hand, HANDOVER_FLOOR
+    b = bus_model.bus(lp.v_on - s.source_resistance * i_conv, s.source_resistance, s.capacitance,
+                      lp.r_on, lp.inductance)
+    v_low, when, settled = bus_model.hold_from(b, i_hand, lp.v_on, duty, res.hold.period, lp.r_off, lp.v_off)
+    # where the orbit has not repeated within the run, the floor bounds the rest
+    tail = ~settled & (floor < v_low)
+    return np.where(tail, floor, v_low), t_hand + np.where(tail, 0.0, when), i_hand, HANDOVER_PWM
+
+
 def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_code: int,
                   bridge_bus: dict | None = None) -> SupplyResult | None:
     """The supply's figures over the points of ``res`` (the longest peak ``peak_time`` s and
@@ -110,7 +176,10 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
     peak = np.broadcast_to(peak_time, lp.v_on.shape)
     top = getattr(res.hold, "terminal_max", None)
     top = res.hold.i_max if top is None else top
-    if res.armature is not None:
+    handover = method = None
+    if s.boosted:
+        v_low, when, handover, method = handover_bus(drive, res, duty)
+    elif res.armature is not None:
         pin = res.armature.pull_in
         v_low = np.asarray(pin.lowest_bus, float).reshape(lp.v_on.shape)
         when = np.asarray(pin.lowest_bus_time, float).reshape(lp.v_on.shape)
@@ -120,7 +189,7 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
         model = model_of(b)
         v_low, when = model.lowest_bus(peak, b)
     clamp = through_clamp(drive)
-    if clamp:
+    if clamp and not s.boosted:     # (after a boost, handover_bus takes the floor itself)
         if res.armature is None:
             i_end, v_end = model.state(peak, b)
             if model is bus_model:
@@ -149,22 +218,29 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
         supply_min_code=supply_min_code if drive.board.supply_sense else None,
         capacitor_energy_j=float(energy[k_e]), capacitor_energy_corner=grid.label(k_e),
         ripple_current_a=float(ripple[k_r]), ripple_corner=grid.label(k_r), ripple_method=CLAMP_RIPPLE_METHOD if off_draws else RIPPLE_METHOD,
-        hold_droop_v=float(np.max(hold_droop)), **(bridge_bus or {}))
+        hold_droop_v=float(np.max(hold_droop)), **(bridge_bus or {}),
+        **({} if handover is None else dict(
+            handover_current_a=float(handover[k]), lowest_bus_method=method,
+            converter_draw_w=s.converter_draw)))
 
 
 def supply_checks(sup: SupplyResult | None) -> list[Check]:
     """``supply_droop``: the firmware's lowest reading of the drooping bus stays at or above
-    its supply-min code (it faults on a reading below it during the peak)."""
+    its supply-min code (it faults on a reading below it during the peak; after a boosted
+    peak the lowest bus is the hold's, from the hand-over)."""
     if sup is None:
         return []
+    phase = ("the peak" if sup.handover_current_a is None else
+             f"the actuation, in the hold after the boost's hand-over at {sup.handover_current_a:.4g} A")
     where = (f"the bus droops {sup.droop_v:.4g} V to {sup.lowest_bus_v:.4g} V at "
-             f"{sup.lowest_bus_corner}, {sup.lowest_bus_time_s * 1e3:.4g} ms into the peak")
+             f"{sup.lowest_bus_corner}, {sup.lowest_bus_time_s * 1e3:.4g} ms into {phase}")
     if sup.lowest_bus_code is None:
         return [Check("supply_droop", True, where + "; the board does not measure its supply")]
     ok = sup.lowest_bus_code >= sup.supply_min_code
     return [Check("supply_droop", ok,
                   f"{where}: the supply sense reads {sup.lowest_bus_code}, its supply-min code is "
                   f"{sup.supply_min_code}" + ("" if ok else
-                  " -- the firmware would fault on its own supply check during the peak: more bulk "
+                  " -- the firmware would fault on its own supply check"
+                  + (" during the peak" if sup.handover_current_a is None else "") + ": more bulk "
                   "capacitance (supply.capacitance), a lower source resistance "
                   "(supply.source_resistance)"))]

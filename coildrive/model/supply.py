@@ -66,6 +66,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import linear2
+from .rl import decay_current
 
 #: Bisection steps for the rise time: the bracket shrinks 2^-60, far below a tick.
 BISECTION_STEPS = 60
@@ -315,3 +316,55 @@ def clamp_hold_ripple_current(ripple) -> np.ndarray:
     on-time, the clamp in the off-time), the source gives its average and the capacitor
     its ripple, a triangle of ``ripple`` A peak to peak: ``ripple / (2 sqrt(3))``."""
     return np.asarray(ripple, float) / (2.0 * np.sqrt(3.0))
+
+
+#: Periods after which :func:`hold_from` stops even if the orbit has not repeated yet (a
+#: coil whose time constant is thousands of periods; the caller bounds the rest).
+HOLD_PERIODS_MAX = 5_000
+#: The orbit has repeated when a period moves the state by less than this, relatively.
+HOLD_SETTLED = 1e-9
+
+
+def hold_from(b: Bus, i0, v0, duty, period, r_off, v_off) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """``(lowest bus V, when s, settled)`` of a voltage-mode PWM hold on the drooping bus
+    from a hand-over: the coil carries ``i0`` A and the bus is at ``v0`` V when the hold
+    starts with an on-time. Each period of ``period`` s is on for ``duty`` of it (the
+    circuit of the module docstring from its state, :func:`state_from`, its lowest bus
+    exact by :func:`lowest_from`), then off: the coil freewheels in its own loop (``r_off``
+    ohm against ``v_off`` V, the exact RL decay, held at zero once there) and draws nothing
+    from the bus, which recovers towards ``V_s`` through ``R_s``: ``v = V_s + (v - V_s)
+    e^{-t/(R_s C)}`` (its lowest is the off-time's start). Periods follow one another until
+    a period moves the state at its start by less than :data:`HOLD_SETTLED` (relative; the
+    orbit repeats, so no later period goes lower) or :data:`HOLD_PERIODS_MAX`; ``settled``
+    says which. ``when`` counts from the hand-over. A plain coil (no eddy term). Every
+    argument broadcasts over the points of ``b``."""
+    shape = np.broadcast_shapes(b.i_ss.shape, *(np.shape(x) for x in (i0, v0, duty, period, r_off, v_off)))
+
+    def flat(x):
+        return np.broadcast_to(np.asarray(x), shape).ravel()
+    fields = [flat(getattr(b, f)) for f in b.__dataclass_fields__]
+    i, v = flat(np.asarray(i0, float)).copy(), flat(np.asarray(v0, float)).copy()
+    d = np.clip(np.nan_to_num(flat(np.asarray(duty, float))), 0.0, 1.0)
+    per = flat(np.asarray(period, float))
+    t_on, t_off = d * per, (1.0 - d) * per
+    r_off, v_off = flat(np.asarray(r_off, float)), flat(np.asarray(v_off, float))
+    recover = np.exp(-t_off / (flat(b.r_s) * flat(b.c)))
+    low, when = v.copy(), np.zeros(v.shape)
+    live = np.ones(v.shape, bool)
+    for n in range(HOLD_PERIODS_MAX):
+        k = np.flatnonzero(live)
+        if k.size == 0:
+            break
+        sub = Bus(*(x[k] for x in fields))
+        v_low, t_low = lowest_from(t_on[k], sub, i[k], v[k])
+        lower = v_low < low[k]
+        low[k] = np.where(lower, v_low, low[k])
+        when[k] = np.where(lower, n * per[k] + t_low, when[k])
+        i_on, v_on = state_from(t_on[k], sub, i[k], v[k])
+        i_next = decay_current(t_off[k], i_on, r_off[k], v_off[k], sub.l)
+        v_next = sub.v_s + (v_on - sub.v_s) * recover[k]
+        still = ((np.abs(i_next - i[k]) > HOLD_SETTLED * np.maximum(np.abs(i[k]), 1e-6))
+                 | (np.abs(v_next - v[k]) > HOLD_SETTLED * np.abs(v[k])))
+        i[k], v[k] = i_next, v_next
+        live[k] = still
+    return low.reshape(shape), when.reshape(shape), ~live.reshape(shape)
