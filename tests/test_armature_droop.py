@@ -30,6 +30,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from armature_equations import equations, values
 from conftest import BOARDS, EXAMPLES, run_cli
 
 from coildrive.config import load_drive
@@ -67,17 +68,9 @@ def reference(p, rs: float, c: float, t_peak: float) -> dict:
     """solve_ivp (Radau) of the equations of the module docstring, three pieces."""
     from scipy.integrate import solve_ivp
 
-    g = {n: float(getattr(p, n)[0]) for n in p.arrays}
-    vs, r, lc, beta, stroke = g["v_on"], g["r_on"], g["l_closed"], g["beta"], g["stroke"]
-
-    def cur(lam, x):
-        return lam * (1 + beta * x) / lc
-
-    def opening(x):
-        return g["preload"] + g["rate"] * (stroke - x) + g["load"]
-
-    def pull(lam):
-        return lam * lam * beta / (2 * lc)
+    g = values(p)
+    vs, r, stroke = g["v_on"], g["r_on"], g["stroke"]
+    cur, opening, pull = equations(g)
 
     def du(lam, x, u):
         return ((vs - u) / rs - cur(lam, x)) / c

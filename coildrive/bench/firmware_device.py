@@ -44,13 +44,15 @@ A full bridge's mixed-decay hold (``hold.fast_fraction``): each off-time decays 
 the fast path (all four open) up to the timer count the driver gives through its
 ``port_fast_end`` hook, then through the slow path.
 
-A current-mode hold (coil without ``[armature]``): the host port records the
+A current-mode hold: the host port records the
 thresholds the driver arms and the off-time one-shot it starts; in the hold the device
 steps the comparator with the coil, event by event (:meth:`FirmwareDevice._step_current`),
 and calls the driver's threshold and off-timer handlers. The driver opens the switch in
 the tick that reports OFF (docs/firmware.md). With an eddy term the state is the
 magnetising current (the segments of :mod:`coildrive.model.eddy`) and the comparator
 sees the terminal current, which steps at each edge by ``(V + V_off) / (R + R_e)``.
+With an ``[armature]`` the peak is the armature model's pull-in as above and the hold's
+segments are those of the seated coil.
 """
 
 from __future__ import annotations
@@ -263,9 +265,6 @@ class FirmwareDevice(LineOutput):
     @staticmethod
     def check_design(design) -> None:
         """``ValueError`` for a design the loop cannot run yet (see the module docstring)."""
-        if design.hold.current_mode is not None and design.drive.armature is not None:
-            raise ValueError("firmware in the loop runs a current-mode hold on a coil without [armature] for now "
-                             "(the seated coil's thresholds after a moving pull-in are not stepped yet)")
         if design.drive.armature is not None and design.drive.supply.droops:
             raise ValueError("firmware in the loop does not run a moving [armature] on a drooping bus "
                              "(supply.source_resistance) yet: emulate it without --firmware (the model's device)")
@@ -595,6 +594,7 @@ class FirmwareDevice(LineOutput):
         (its counts at the design's off-time prescaler on the timer clock)."""
         T = self.pwm_period
         end, conv = t0 + T, t0 + 0.5 * T
+        self._flight_t0 = None     # switched by thresholds: the seated coil (any pull-in run is over)
         ticks = []
         while self._tick / self.tick_rate < end:
             ticks.append(self._tick / self.tick_rate)
