@@ -769,7 +769,8 @@ def _armature_actuation(drive: Drive, th: Thresholds, supply: float, coil_temp: 
     (:func:`threshold_hold`), the release run until the armature is back on the open
     stop. Where the armature is not seated at the end of the peak, or the hold's current
     falls below the stay current, the hold would switch with the armature in flight: not
-    modelled, refused in one line (``InputError``)."""
+    modelled, refused in one line (``InputError``). Without a hold (``hold_time`` 0: a
+    STOP in the peak) the switch opens at the peak's end, the armature wherever it is."""
     from ..model.waveform import armature_actuation
 
     def hold(t0, i0, v, r_on, r_off, v_off, seated):
@@ -782,6 +783,9 @@ def _armature_actuation(drive: Drive, th: Thresholds, supply: float, coil_temp: 
         return (np.concatenate(ts), cur, np.concatenate(ons), t, i, min(i0, float(np.min(cur))),
                 last[0] if last else t0)
 
+    if hold_time <= 0:   # no hold (a STOP in the peak): the switch opens at the peak's end
+        return armature_actuation(drive, supply, coil_temp, peak_time, 0.0, 1.0, 0.0, r_factor,
+                                  l_factor, points, label)
     try:
         return armature_actuation(drive, supply, coil_temp, peak_time, 0.0, 1.0, hold_time,
                                   r_factor, l_factor, points, label, hold=hold)
