@@ -193,18 +193,24 @@ def test_design_against_solve_ivp_at_the_worst_corner(hyst):
                                   "current_mode_regulated", "current_mode_frequency")), names
 
 
+def _simulated(path: Path, tmp_path: Path, hold: str, *columns: str):
+    """``simulate --csv`` of ``path`` at 12 V with a 40 degC coil, holding ``hold``: the
+    named columns."""
+    csv = tmp_path / "w.csv"
+    r = run_cli("simulate", str(path), "--supply", "12", "--coil-temp", "40", "--hold-time", hold,
+                "--csv", str(csv))
+    assert r.returncode == 0, r.stderr
+    head = csv.read_text().split("\n", 1)[0].split(",")
+    a = np.loadtxt(csv, delimiter=",", skiprows=1)
+    return tuple(a[:, head.index(n)] for n in columns)
+
+
 def test_simulate_csv_against_solve_ivp(hyst, tmp_path):
     """simulate --csv at 12 V with a 40 degC coil (nominal parts): the seat (gap 0), every
     switching edge of the hold, the final turn-off and the open stop against solve_ivp of
     the fresh equations. Measured: seat 8e-9 relative, edges within 1.2e-11 s, open 4e-9."""
     path, d = hyst
-    csv = tmp_path / "w.csv"
-    r = run_cli("simulate", str(path), "--supply", "12", "--coil-temp", "40", "--hold-time", "4 ms",
-                "--csv", str(csv))
-    assert r.returncode == 0, r.stderr
-    head = csv.read_text().split("\n", 1)[0].split(",")
-    a = np.loadtxt(csv, delimiter=",", skiprows=1)
-    t, i, on, x = (a[:, head.index(n)] for n in ("time_s", "current_a", "switch_on", "position_m"))
+    t, i, on, x = _simulated(path, tmp_path, "4 ms", "time_s", "current_a", "switch_on", "position_m")
     assert np.all(np.diff(t) > 0)
     th = d.hold.thresholds
     ref = reference(_point(d.drive, 12.0, 40.0), th.lower_a, th.upper_a, d.pull_in.peak_time_s, 4e-3)
@@ -250,13 +256,7 @@ def test_split_decay_simulate_against_solve_ivp(tmp_path):
     path = _drive_file(tmp_path, extra="\n[freewheel]\nsplit_decay = true\n", board="lab-m32-zener")
     d = make_design(load_drive(path))
     assert d.split_decay is not None and d.drive.freewheel.bypass_lead >= 0
-    csv = tmp_path / "w.csv"
-    r = run_cli("simulate", str(path), "--supply", "12", "--coil-temp", "40", "--hold-time", "12 ms",
-                "--csv", str(csv))
-    assert r.returncode == 0, r.stderr
-    head = csv.read_text().split("\n", 1)[0].split(",")
-    a = np.loadtxt(csv, delimiter=",", skiprows=1)
-    t, on, x, bypass = (a[:, head.index(n)] for n in ("time_s", "switch_on", "position_m", "bypass_on"))
+    t, on, x, bypass = _simulated(path, tmp_path, "12 ms", "time_s", "switch_on", "position_m", "bypass_on")
     fast = loop(d.drive, np.array([12.0]), np.array([40.0]), path="release")
     th = d.hold.thresholds
     ref = reference(_point(d.drive, 12.0, 40.0), th.lower_a, th.upper_a, d.pull_in.peak_time_s, 12e-3,
