@@ -375,3 +375,33 @@ def test_an_eddy_term_stays_refused_in_one_line(tmp_path):
     r = run_cli("design", str(path))
     assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1, r.stderr
     assert "coil.eddy_resistance" in r.stderr and "Traceback" not in r.stderr
+
+
+def test_two_straight_curves_are_the_linear_design(tmp_path):
+    """The coil's two flux-linkage curves (open and seated) under the current-mode hold:
+    straight curves at the two inductances give the linear coil's design (checked against
+    solve_ivp above) -- pull-in, thresholds, hold, release, the armature's figures -- to
+    1e-9, and simulate's hold stays inside the band."""
+    from test_armature_curves import L_OPEN, L_SEATED, curve_drive
+
+    lin = make_design(load_drive(_drive_file(tmp_path))).to_dict()
+    amps = np.array([0.0, 1.0, 4.0])
+    base = curve_drive(tmp_path, (amps, L_OPEN * amps), (amps, L_SEATED * amps),
+                       hold=f"{lin['hold']['current_a']!r} A",
+                       release=f"{lin['release']['dropout_current_a']!r} A")
+    path = _drive_file(tmp_path)
+    path.write_text(base.read_text().replace('frequency = "25 kHz"',
+                                             'frequency = "25 kHz"\nmode = "current"\ncontrol = "hysteretic"'))
+    cur = make_design(load_drive(path)).to_dict()
+    assert cur["current_mode"]["lower_code"] == lin["current_mode"]["lower_code"]
+    assert cur["current_mode"]["upper_code"] == lin["current_mode"]["upper_code"]
+    for sec, key in (("pull_in", "time_s"), ("pull_in", "peak_time_s"), ("hold", "frequency_hz"),
+                     ("hold", "min_mean_current_a"), ("hold", "max_mean_current_a"),
+                     ("release", "time_s"), ("release", "energy_j"), ("armature", "seat_time_s"),
+                     ("armature", "stay_current_a"), ("armature", "hold_force_margin"),
+                     ("armature", "release_open_time_s")):
+        assert cur[sec][key] == pytest.approx(lin[sec][key], rel=1e-9, abs=1e-15), (sec, key)
+    t, i = _simulated(path, tmp_path, "4 ms", "time_s", "current_a")
+    th = cur["current_mode"]
+    hold = (t > cur["pull_in"]["peak_time_s"] + 3e-3) & (t < cur["pull_in"]["peak_time_s"] + 4e-3)
+    assert th["lower_a"] * (1 - 1e-9) <= i[hold].min() and i[hold].max() <= th["upper_a"] * (1 + 1e-6)
