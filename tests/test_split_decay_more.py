@@ -26,6 +26,7 @@ References named beside each check:
 from __future__ import annotations
 
 import csv
+import json
 import math
 import subprocess
 from pathlib import Path
@@ -485,12 +486,16 @@ def test_armature_split_simulate_csv(latch_split, tmp_path):
 
 
 def test_split_decay_with_armature_and_current_mode_are_accepted(tmp_path):
-    """Both used to be refused; with current mode and an armature together the design
-    still says that combination is not modelled (one line, exit 2)."""
+    """All three used to be refused: split decay with an armature, and together with a
+    current-mode hold (its hold on the slow path, the armature's release on the fast one:
+    tests/test_armature_current_mode.py checks the hold and release against solve_ivp)."""
     path = _drive_file(tmp_path, "locker-latch-12v", '[freewheel]\nsplit_decay = true\n',
                        board="lab-m32-zener")
     assert run_cli("design", str(path), "--json").returncode == 0
     both = _drive_file(tmp_path, "locker-latch-12v", '[freewheel]\nsplit_decay = true\n',
                        current="hysteretic", board="lab-m32-zener", name="both")
-    r = run_cli("design", str(both))
-    assert r.returncode == 2 and "hold.mode" in r.stderr and "Traceback" not in r.stderr, r.stderr
+    r = run_cli("design", str(both), "--json")
+    assert r.returncode == 0, r.stderr
+    doc = json.loads(r.stdout)
+    assert doc["hold"]["regulation"] == "current" and doc["split_decay"] is not None
+    assert _check(doc, "armature_releases")["ok"] and _check(doc, "armature_hold")["ok"]

@@ -269,14 +269,16 @@ def _bench_drive(drive: Drive) -> Drive:
     return cold
 
 
-def _current_mode_point(design, point: OperatingPoint, peak: float):
+def _current_mode_point(design, point: OperatingPoint, peak: float, mechanics: bool = True):
     """A current-mode hold at ``point``: the design's figures there
     (:func:`coildrive.design.hold_current.evaluate_current`, its thresholds) as
-    ``(PointResults, CurrentModeSteadyState)`` of one point."""
+    ``(PointResults, CurrentModeSteadyState)`` of one point (``mechanics``: run an
+    ``[armature]``'s model; the hold's switching alone does not need it)."""
     from ..design.hold_current import evaluate_current
 
     return evaluate_current(_bench_drive(design.drive), design.hold.thresholds,
-                            np.array([point.supply_v]), np.array([point.coil_temp_c]), 1.0, 1.0, peak)
+                            np.array([point.supply_v]), np.array([point.coil_temp_c]), 1.0, 1.0, peak,
+                            mechanics=mechanics)
 
 
 def hold_setting(design, point: OperatingPoint) -> tuple[float, float, float]:
@@ -289,7 +291,7 @@ def hold_setting(design, point: OperatingPoint) -> tuple[float, float, float]:
     duty, peak = firmware_setting(design, point.supply_v, point.coil_temp_c)
     if design.hold.current_mode is None:
         return duty, design.hold.frequency_hz, peak
-    _, cm = _current_mode_point(design, point, peak)
+    _, cm = _current_mode_point(design, point, peak, mechanics=False)
     if not bool(cm.regulated[0]):
         return 1.0, design.hold.frequency_hz, peak
     return float(cm.duty[0]), float(cm.frequency[0]), peak

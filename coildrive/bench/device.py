@@ -305,9 +305,6 @@ class VirtualDevice(LineOutput):
         #: a current-mode hold: its thresholds end the hold's segments (the duty and
         #: frequency settings are then the fixed-duty fallback's, not in force)
         self._thresholds = design.hold.thresholds if design.hold.current_mode is not None else None
-        if self._thresholds is not None and drive.armature is not None:
-            raise ValueError("the virtual device runs a current-mode hold on a coil without [armature] "
-                             "for now (the moving armature's run has a PWM hold)")
         if not design.pull_in.peak_ticks:
             raise ValueError("the design has no peak phase (the pull-in current is never reached)")
         board = drive.board

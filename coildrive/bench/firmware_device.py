@@ -26,7 +26,8 @@ commands answer OUT_OF_RANGE with the value in force (the compiled driver has it
 settings built in). Until the first command the device actuates by itself.
 
 With an ``[armature]`` the current while the switch is held fully on from rest is the
-design's armature model (the pull-in with its dip); from the end of that peak on, the
+design's armature model (the pull-in with its dip; on a drooping bus with the bulk
+capacitor, whose voltage the supply conversions then read); from the end of that peak on, the
 seated coil's RL model (the motional EMF of the armature opening in the release is left
 out). On a full bridge the pull-in runs on the bridge's drive path (Q1 + Q4), the seated
 hold on its slow decay and the release on its fast decay, as without an armature.
@@ -44,13 +45,15 @@ A full bridge's mixed-decay hold (``hold.fast_fraction``): each off-time decays 
 the fast path (all four open) up to the timer count the driver gives through its
 ``port_fast_end`` hook, then through the slow path.
 
-A current-mode hold (coil without ``[armature]``): the host port records the
+A current-mode hold: the host port records the
 thresholds the driver arms and the off-time one-shot it starts; in the hold the device
 steps the comparator with the coil, event by event (:meth:`FirmwareDevice._step_current`),
 and calls the driver's threshold and off-timer handlers. The driver opens the switch in
 the tick that reports OFF (docs/firmware.md). With an eddy term the state is the
 magnetising current (the segments of :mod:`coildrive.model.eddy`) and the comparator
 sees the terminal current, which steps at each edge by ``(V + V_off) / (R + R_e)``.
+With an ``[armature]`` the peak is the armature model's pull-in as above and the hold's
+segments are those of the seated coil.
 """
 
 from __future__ import annotations
@@ -263,28 +266,45 @@ class FirmwareDevice(LineOutput):
     @staticmethod
     def check_design(design) -> None:
         """``ValueError`` for a design the loop cannot run yet (see the module docstring)."""
-        if design.hold.current_mode is not None and design.drive.armature is not None:
-            raise ValueError("firmware in the loop runs a current-mode hold on a coil without [armature] for now "
-                             "(the seated coil's thresholds after a moving pull-in are not stepped yet)")
-        if design.drive.armature is not None and design.drive.supply.droops:
-            raise ValueError("firmware in the loop does not run a moving [armature] on a drooping bus "
-                             "(supply.source_resistance) yet: emulate it without --firmware (the model's device)")
+        d = design.drive
+        if d.armature is not None and d.supply.droops and d.coil.eddy_resistance:
+            raise ValueError("firmware in the loop does not run a moving [armature] with an eddy-current "
+                             "term on a drooping bus (supply.source_resistance) yet: emulate it without "
+                             "--firmware (the model's device)")
 
     def _pull_in_flight(self, faulty, design, l_scale):
         """With an armature (not stuck): ``(time, current)`` of the pull-in with the switch
         held on from rest, long enough for the longest peak (the armature model of the
-        design, :func:`coildrive.model.armature_sim.simulate`)."""
+        design, :func:`coildrive.model.armature_sim.simulate`). On a drooping bus
+        (``supply.source_resistance``) the run carries the bulk capacitor, as the design's
+        pull-in does: :attr:`_flight_bus` is then its bus voltage (V) at those times, which
+        the driver's supply conversions read while the flight lasts."""
+        self._flight_bus = None
         if faulty.armature is None:
             return None
         from ..model.armature import params_from_loop
         from ..model.armature_sim import simulate
-        p = params_from_loop(faulty.armature, self._loops["hold"], l_scale, faulty.coil.eddy_resistance)
+        s = faulty.supply
+        p = params_from_loop(faulty.armature, self._loops["hold"], l_scale, faulty.coil.eddy_resistance,
+                             bus=(s.source_resistance, s.capacitance) if s.droops else (0.0, 0.0))
         span = (design.pull_in.peak_ticks + 2) / float(faulty.board.tick.rate) + 2.0 / design.timer.frequency_hz
         traj = simulate(p, [(span, True, 4000)])
         # the magnetising current (with an eddy term the sensed terminal current follows
         # from it, as in the rest of the device's periods)
         i_m = traj.current if traj.magnetising_current is None else traj.magnetising_current
+        if traj.bus is not None:
+            self._flight_bus = np.asarray(traj.bus, float)
         return np.asarray(traj.time, float), np.asarray(i_m, float)
+
+    def _supply_reading(self, t: float, flight: float | None) -> int:
+        """The supply conversion's code at device time ``t`` s: the bus of the pull-in run
+        (started at ``flight`` s) on a drooping bus while it lasts, else the supply."""
+        if flight is None or self._flight_bus is None:
+            return self._supply_code
+        b = self.drive.board
+        volts = float(np.interp(t - flight, self._flight[0], self._flight_bus))
+        return int(min(max(math.floor(volts / b.supply_sense.divider / b.adc.reference * 2**b.adc.bits),
+                           0), self._full))
 
     # ------------------------------------------------------------------ emulator interface
     def receive(self, data: bytes, now: float) -> list[Reply]:
@@ -539,7 +559,7 @@ class FirmwareDevice(LineOutput):
         for tt in [x for x in ticks if x < s]:
             self._do_tick(tt)
         code = int(self._codes(np.array([float(sensed(s))]))[0])
-        self.lib.fil_conversion(code, self._supply_code)
+        self.lib.fil_conversion(code, self._supply_reading(s, flight))
         new = int(self.lib.fil_outputs())
         if not new >> 24 & 1 and on_end > s:
             on_end = s                      # the switch output is disabled at once
@@ -595,6 +615,7 @@ class FirmwareDevice(LineOutput):
         (its counts at the design's off-time prescaler on the timer clock)."""
         T = self.pwm_period
         end, conv = t0 + T, t0 + 0.5 * T
+        self._flight_t0 = None     # switched by thresholds: the seated coil (any pull-in run is over)
         ticks = []
         while self._tick / self.tick_rate < end:
             ticks.append(self._tick / self.tick_rate)

@@ -231,32 +231,45 @@ def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
     t_drop, t_zero, energy, i_fast = release_figures(drive, lp, lp_rel, i_off)
     arm = None
     if drive.armature is not None and mechanics:
-        arm = _armature_figures(drive, lp, l_factor, ss, peak_time,
-                                None if reuse is None else reuse.armature, lp_rel)
-        shape = np.shape(supply)
-        t_pull = arm.pull_in.seat_time.reshape(shape)
-        i_inf = lp.v_on / lp.r_on
-        i_peak = arm.pull_in.peak_end_current.reshape(shape)
-        i_peak = np.where(np.isfinite(i_peak), i_peak, i_inf)  # not settled: the worst case
-        t_drop = arm.release.open_time.reshape(shape)
-        t_zero = arm.release.zero_time.reshape(shape)
-        rb = arm.release
-        q, s = rb.charge.reshape(shape), rb.square.reshape(shape)
-        if rb.slow_charge is None:
-            # the whole release through the release path (the hold's without split decay)
-            energy = freewheel_element_energy(drive, lp_rel, q, s)
-        else:
-            # a late bypass: through the slow path until it opens, then the fast one
-            q1, s1 = rb.slow_charge.reshape(shape), rb.slow_square.reshape(shape)
-            energy = (freewheel_element_energy(drive, lp, q1, s1)
-                      + freewheel_element_energy(drive, lp_rel, q - q1, s - s1))
-            i_fast = rb.fast_current.reshape(shape)
+        arm, t_pull, i_peak, t_drop, t_zero, energy, i_fast = moving_armature(
+            drive, lp, lp_rel, l_factor, ss, peak_time, None if reuse is None else reuse.armature,
+            np.shape(supply), i_fast)
     interrupt, v_sw = switch_voltage_peak(drive, lp, lp_rel, i_peak, ss.i_max, i_fast)
     return PointResults(supply=supply, ambient=ambient, coil_temp=temp, r_factor=r_factor,
                         l_factor=l_factor, loop=lp, pull_in_time=t_pull, peak_end_current=i_peak,
                         hold=ss, coil_power=power, release_time=t_drop, release_zero_time=t_zero,
                         release_energy=energy, interrupt_current=interrupt,
                         peak_switch_voltage=v_sw, armature=arm, release_loop=lp_rel)
+
+
+def moving_armature(drive: Drive, lp: Loop, lp_rel: Loop, l_factor, ss: PwmSteadyState, peak_time,
+                    reuse: "ArmatureFigures | None", shape: tuple, i_fast):
+    """The figures an ``[armature]`` decides at the points (arrays of ``shape``), for any
+    hold whose steady state ``ss`` is a two-segment cycle on the seated coil (the PWM
+    hold, a current-mode hold's switching cycle): ``(ArmatureFigures, pull-in time s
+    (the seat), current at the end of the peak A, release time s (back on the open stop),
+    time to zero current s, freewheel energy J, current when the release path takes over
+    A: ``i_fast``, the still coil's, unless a late bypass's run says)``. The release starts
+    from the top of the ripple ``ss.i_max``."""
+    arm = _armature_figures(drive, lp, l_factor, ss, peak_time, reuse, lp_rel)
+    t_pull = arm.pull_in.seat_time.reshape(shape)
+    i_inf = lp.v_on / lp.r_on
+    i_peak = arm.pull_in.peak_end_current.reshape(shape)
+    i_peak = np.where(np.isfinite(i_peak), i_peak, i_inf)  # not settled: the worst case
+    t_drop = arm.release.open_time.reshape(shape)
+    t_zero = arm.release.zero_time.reshape(shape)
+    rb = arm.release
+    q, s = rb.charge.reshape(shape), rb.square.reshape(shape)
+    if rb.slow_charge is None:
+        # the whole release through the release path (the hold's without split decay)
+        energy = freewheel_element_energy(drive, lp_rel, q, s)
+    else:
+        # a late bypass: through the slow path until it opens, then the fast one
+        q1, s1 = rb.slow_charge.reshape(shape), rb.slow_square.reshape(shape)
+        energy = (freewheel_element_energy(drive, lp, q1, s1)
+                  + freewheel_element_energy(drive, lp_rel, q - q1, s - s1))
+        i_fast = rb.fast_current.reshape(shape)
+    return arm, t_pull, i_peak, t_drop, t_zero, energy, i_fast
 
 
 def switch_voltage_peak(drive: Drive, lp: Loop, lp_rel: Loop, i_peak, i_max, i_fast):

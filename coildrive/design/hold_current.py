@@ -52,9 +52,10 @@ from ..model.pwm import coil_heat
 from ..model.rl import decay_current, decay_time, rise_current, rise_time
 from ..model.thermal import closed_form_temperature, settle_temperature
 from . import hold_voltage
-from .checks import base_checks, cautions, energy_checks, loss_cautions, loss_checks
+from .hold_voltage import closing_checks
+from .checks import base_checks
 from .corners import CornerGrid, corner_grid, nominal_point
-from .evaluate import PointResults, release_figures, switch_voltage_peak
+from .evaluate import PointResults, moving_armature, release_figures, switch_voltage_peak
 from .figures import (adc_code, adc_thresholds, corners_of, hold_spread, loss_figures, pull_in_result,
                       release_result, saving_figures, slow_hold_drive)
 from .boost import boost_outputs, boosted_points, boosted_turn_offs, peak_in_force
@@ -301,13 +302,16 @@ def choose_thresholds(drive: Drive, grid: CornerGrid, peak_time: float = 0.0) ->
 
 
 def evaluate_current(drive: Drive, th: Thresholds, supply, ambient, r_factor, l_factor,
-                     peak_time, heat_peak: float | None = None
+                     peak_time, heat_peak: float | None = None, mechanics: bool = True
                      ) -> tuple[PointResults, CurrentModeSteadyState]:
     """Every design figure at the points with the current-mode hold ``th`` (the
     counterpart of :func:`coildrive.design.evaluate.evaluate`; the release starts from the
     top of the ripple) after a peak of ``peak_time`` s; ``heat_peak`` (s, default
     ``peak_time``): the peak an on/off cycle heats the coil with. With split decay the hold (thresholds, switching, heat) takes
-    the slow path and the release the fast one, as in voltage mode."""
+    the slow path and the release the fast one, as in voltage mode. With an ``[armature]``
+    (``mechanics``: run its model) the pull-in is the seat, the peak's end current the
+    moving armature's, the release the time until it is back open (as
+    :func:`coildrive.design.evaluate.evaluate`)."""
     supply, ambient, r_factor, l_factor = np.broadcast_arrays(
         *(np.asarray(x, float) for x in (supply, ambient, r_factor, l_factor)))
     lower = th.lower_a if th.control == "hysteretic" else 0.0
@@ -326,12 +330,19 @@ def evaluate_current(drive: Drive, th: Thresholds, supply, ambient, r_factor, l_
     else:
         lp_rel = lp
     t_drop, t_zero, energy, i_fast = release_figures(drive, lp, lp_rel, i_off)
+    arm = None
+    if drive.armature is not None and mechanics:
+        # the peak with the moving armature, the hold's switching cycle on the seated coil
+        # (lp.inductance is inductance_closed) for its force, the release from the top of
+        # the band until the armature is back on the open stop
+        arm, t_pull, i_peak, t_drop, t_zero, energy, i_fast = moving_armature(
+            drive, lp, lp_rel, l_factor, ss, peak_time, None, np.shape(supply), i_fast)
     interrupt, v_sw = switch_voltage_peak(drive, lp, lp_rel, i_peak, ss.i_max, i_fast)
     res = PointResults(supply=supply, ambient=ambient, coil_temp=temp, r_factor=r_factor,
                        l_factor=l_factor, loop=lp, pull_in_time=t_pull, peak_end_current=i_peak,
                        hold=ss, coil_power=power, release_time=t_drop, release_zero_time=t_zero,
                        release_energy=energy, interrupt_current=interrupt,
-                       peak_switch_voltage=v_sw, release_loop=lp_rel)
+                       peak_switch_voltage=v_sw, armature=arm, release_loop=lp_rel)
     return res, cm
 
 
@@ -356,7 +367,7 @@ def _split_saving(drive: Drive, grid: CornerGrid, res: PointResults, cm: Current
     slow, assumed = slow_hold_drive(drive)
     th = choose_thresholds(slow, grid, peak_time)
     rs, cms = evaluate_current(slow, th, grid.supply, grid.ambient, grid.r_factor, grid.l_factor,
-                               peak_time)
+                               peak_time, mechanics=False)
     ls = current_losses(slow, rs, cms)
     fb = fallback.hold.split_decay_saving or {}
     out = saving_figures(drive, res, loss, float(np.max(cm.duty)), rs, ls,
@@ -385,9 +396,10 @@ def _split_result(drive: Drive, fallback, cm: CurrentModeSteadyState):
 # --------------------------------------------------------------------------- design
 def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     """The Design of a current-mode drive (see the module docstring)."""
-    if drive.armature is not None:
-        raise InputError(drive.source, "hold.mode", "current-mode hold with an [armature] is not "
-                         "modelled yet; use mode = \"voltage\" or leave [armature] out")
+    if drive.armature is not None and drive.coil.eddy_resistance:
+        raise InputError(drive.source, "coil.eddy_resistance", "a current-mode hold with an [armature] "
+                         "and an eddy-current term is not modelled yet; use mode = \"voltage\" or "
+                         "leave the eddy term out")
     if samples > 0:
         raise InputError("--samples", "", "the Monte Carlo covers the voltage-mode hold only "
                          "(this drive has hold.mode = \"current\")")
@@ -446,14 +458,13 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     checks = [c for c in base if c.name not in voltage_only + ("audible_frequency",)]
     checks += _current_checks(drive, th, result, thresholds, res, cm, grid)
     split = _split_result(drive, fallback, cm) if split_decay(drive) else None
-    checks += loss_checks(drive, hold, loss, grid, split)
-    checks += energy_checks(drive, release)
+    arm, more, notes = closing_checks(drive, grid, res, hold, loss, release, split)
+    checks += more
     for name in voltage_only:
         if name in old:
             c = old[name]
             checks.append(dataclasses.replace(c, detail="fixed-duty fallback: " + c.detail,
                                               severity="warning"))
-    notes = cautions(drive, hold, release) + loss_cautions(drive, hold, release, split)
     topo = topology_result(drive, grid, res, res.peak_end_current, thresholds.trip_current_a)
     notes += topology_cautions(drive, topo)
     lower = th.lower_a if th.control == "hysteretic" else 0.0
@@ -479,7 +490,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     return dataclasses.replace(
         fallback, drive=drive, pull_in=pull_in, hold=hold, release=release, adc=thresholds,
         split_decay=split, corners=corners, nominal=nominal, checks=checks, cautions=notes,
-        actuation_points=points, topology=topo, thermal_cycle=thermal, supply=sup, boost=boost,
+        actuation_points=points, armature=arm, topology=topo, thermal_cycle=thermal, supply=sup, boost=boost,
         input_hash=drive.input_hash(), worst_corner_index=k_pull,
         rise_check=rise_check(drive, grid, res, fallback.timer.frequency_hz),
         seat_check=seat_check(drive, grid, res), eddy=eddy_result(drive, grid, res))
@@ -648,6 +659,54 @@ def actuation(design: Design, supply: float, coil_temp: float, hold_time: float,
                                   hold_time, r_factor, l_factor, points, label)
 
 
+def threshold_hold(th: Thresholds, t: float, i: float, end: float, v: float, r_on: float,
+                   r_off: float, v_off: float, ind, points: int, ts: list, cs: list,
+                   ons: list) -> tuple[float, float, list]:
+    """The current-mode hold ``th`` from ``t`` s and ``i`` A (the end of the peak) until the
+    first turn-off edge at or after ``end`` s, in closed-form segments of inductance
+    ``ind`` (H, or one point's curve), every switch edge a sample: each segment's samples
+    (s, A, 0/1) appended to ``ts``, ``cs``, ``ons``. Returns ``(t_off s, i_off A,
+    [start s, current A] of the last on-time or [])``. Where the threshold is out of reach
+    (``V / R_on`` at or below it) the switch stays on to ``end``."""
+    a = v / r_on   # the current the on-time rises toward, A
+    hyst = th.control == "hysteretic"
+    upper, lower, d = th.upper_a, th.lower_a, th.delay_s
+    big = 40 * points
+    last_on = []
+
+    def on_seg(t0, i0, dur):
+        last_on[:] = [t0, i0]
+        x = np.linspace(0.0, dur, points + 1)[1:]
+        ts.append(t0 + x)
+        cs.append(rise_current(x, i0, v, r_on, ind))
+        ons.append(np.ones_like(x))
+        return t0 + dur, float(cs[-1][-1])
+
+    def off_seg(t0, i0, dur, n=points):
+        x = np.linspace(0.0, dur, n + 1)[1:]
+        ts.append(t0 + x)
+        cs.append(decay_current(x, i0, r_off, v_off, ind))
+        ons.append(np.zeros_like(x))
+        return t0 + dur, float(cs[-1][-1])
+
+    regulated = upper < a
+    first = True
+    while t < end and regulated:
+        # off: to the lower threshold (+ delay) or for the fixed off time; the first one,
+        # down from the peak, gets as many samples as the peak
+        dur = float(decay_time(lower, i, r_off, v_off, ind)) + d if hyst else th.off_time_s
+        t, i = off_seg(t, i, dur, big if first else points)
+        first = False
+        # on: to the upper/peak threshold, + delay (none while the current is still above
+        # the peak threshold after the peak phase: the switch turns straight off again)
+        dur = float(rise_time(upper, i, v, r_on, ind)) + d
+        if dur > 0:
+            t, i = on_seg(t, i, dur)
+    if not regulated:
+        t, i = on_seg(t, i, end - t)
+    return t, i, last_on
+
+
 def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_temp: float,
                            peak_time: float, hold_time: float, r_factor: float = 1.0,
                            l_factor: float = 1.0, points: int = 8, label: str = ""):
@@ -656,10 +715,16 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
 
     With split decay the hold's off segments take the slow path and the release the
     fast one, the bypass opening as ``freewheel.bypass_lead`` says (within the last
-    on-time, or after the turn-off for a negative lead; a ``bypass_on`` column)."""
+    on-time, or after the turn-off for a negative lead; a ``bypass_on`` column).
+
+    With an ``[armature]`` the peak is the moving armature's run and the hold the
+    thresholds' segments on the seated coil (:func:`_armature_actuation`)."""
     from ..model.waveform import (boost_columns, one_point, peak_samples, release_waveform,
                                   split_release, split_waveform)
 
+    if drive.armature is not None:
+        return _armature_actuation(drive, th, supply, coil_temp, peak_time, hold_time, r_factor,
+                                   l_factor, points, label)
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
     if isinstance(lp.inductance, EddyCoil):   # the sensed current steps at each edge
         from ..model.eddy_waveform import threshold_actuation
@@ -676,45 +741,11 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
                              supply, peak_time, float(np.ravel(lp.r_on)[0]), lp.inductance[...])
     v, r_on, r_off, v_off = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off))
     ind = one_point(lp.inductance)   # H, or a saturating coil's curve (exact segments)
-    a = v / r_on  # the current the on-time rises toward, A
-    hyst = th.control == "hysteretic"
-    upper, lower, d = th.upper_a, th.lower_a, th.delay_s
     big = 40 * points
     ts, cs, ons = [], [], []
-    last_on = []  # start time and current of the latest on segment
-
-    def on_seg(t0, i0, dur):
-        last_on[:] = [t0, i0]
-        t = np.linspace(0.0, dur, points + 1)[1:]
-        ts.append(t0 + t)
-        cs.append(rise_current(t, i0, v, r_on, ind))
-        ons.append(np.ones_like(t))
-        return t0 + dur, float(cs[-1][-1])
-
-    def off_seg(t0, i0, dur, n=points):
-        t = np.linspace(0.0, dur, n + 1)[1:]
-        ts.append(t0 + t)
-        cs.append(decay_current(t, i0, r_off, v_off, ind))
-        ons.append(np.zeros_like(t))
-        return t0 + dur, float(cs[-1][-1])
-
     t, i = peak_time, peak_samples(peak_time, v, r_on, ind, big, ts, cs, ons, drive)
-    end = peak_time + hold_time
-    regulated = upper < a
-    first = True
-    while t < end and regulated:
-        # off: to the lower threshold (+ delay) or for the fixed off time; the first one,
-        # down from the peak, gets as many samples as the peak
-        dur = float(decay_time(lower, i, r_off, v_off, ind)) + d if hyst else th.off_time_s
-        t, i = off_seg(t, i, dur, big if first else points)
-        first = False
-        # on: to the upper/peak threshold, + delay (none while the current is still above
-        # the peak threshold after the peak phase: the switch turns straight off again)
-        dur = float(rise_time(upper, i, v, r_on, ind)) + d
-        if dur > 0:
-            t, i = on_seg(t, i, dur)
-    if not regulated:
-        t, i = on_seg(t, i, hold_time)
+    t, i, last_on = threshold_hold(th, t, i, peak_time + hold_time, v, r_on, r_off, v_off, ind,
+                                   points, ts, cs, ons)
     t_off_edge = t
     if split_decay(drive):
         fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
@@ -727,3 +758,37 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
         return boost_columns(drive, w, supply, peak_time, r_on, ind)
     w = release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_off_edge, i, big, label)
     return boost_columns(drive, w, supply, peak_time, r_on, ind)
+
+
+def _armature_actuation(drive: Drive, th: Thresholds, supply: float, coil_temp: float,
+                        peak_time: float, hold_time: float, r_factor: float, l_factor: float,
+                        points: int, label: str):
+    """One actuation of a current-mode hold with a moving armature
+    (:func:`coildrive.model.waveform.armature_actuation` with the thresholds as its hold):
+    the pull-in run during the peak, the hold's closed-form segments on the seated coil
+    (:func:`threshold_hold`), the release run until the armature is back on the open
+    stop. Where the armature is not seated at the end of the peak, or the hold's current
+    falls below the stay current, the hold would switch with the armature in flight: not
+    modelled, refused in one line (``InputError``). Without a hold (``hold_time`` 0: a
+    STOP in the peak) the switch opens at the peak's end, the armature wherever it is."""
+    from ..model.waveform import armature_actuation
+
+    def hold(t0, i0, v, r_on, r_off, v_off, seated):
+        ts, cs, ons = [], [], []
+        t, i, last = threshold_hold(th, t0, i0, t0 + hold_time, v, r_on, r_off, v_off, seated,
+                                    points, ts, cs, ons)
+        if not ts:
+            return np.empty(0), np.empty(0), np.empty(0), t, i, i0, t0
+        cur = np.concatenate(cs)
+        return (np.concatenate(ts), cur, np.concatenate(ons), t, i, min(i0, float(np.min(cur))),
+                last[0] if last else t0)
+
+    if hold_time <= 0:   # no hold (a STOP in the peak): the switch opens at the peak's end
+        return armature_actuation(drive, supply, coil_temp, peak_time, 0.0, 1.0, 0.0, r_factor,
+                                  l_factor, points, label)
+    try:
+        return armature_actuation(drive, supply, coil_temp, peak_time, 0.0, 1.0, hold_time,
+                                  r_factor, l_factor, points, label, hold=hold)
+    except ValueError as exc:
+        raise InputError(drive.source, "hold.mode",
+                         f"current mode at {supply:.4g} V, {coil_temp:.4g} degC: {exc}") from None

@@ -775,7 +775,8 @@ def rail_curves(result: SystemResult, points: int = 6000) -> list[dict]:
 def _refuse(system: System, ch) -> None:
     """What the rail's current bound is made for: a linear coil (with a moving armature or
     an eddy term, not both) or a flux-linkage curve (no armature; voltage-mode with or
-    without an eddy term, or a hysteretic current-mode hold), on one switch
+    without an eddy term, or a hysteretic current-mode hold), a moving armature under a
+    voltage-mode hold only, on one switch
     or a full bridge, a voltage-mode (fixed, supply-table or closed-loop) or current-mode hold and one
     switch. Anything else is refused in one line."""
     d = ch.drive
@@ -786,6 +787,8 @@ def _refuse(system: System, ch) -> None:
         key, why = "hold.control", "a fixed off-time current-mode hold with a flux-linkage curve"
     elif d.hold.mode == "latch":
         key, why = "hold.mode", "a latching coil"
+    elif d.armature is not None and d.hold.mode == "current":
+        key, why = "hold.mode", "a current-mode hold with an [armature]"
     elif d.coil.eddy_resistance and (d.armature is not None or d.hold.mode == "current"):
         key, why = "coil.eddy_resistance", "an eddy-current term with an [armature] or a current-mode hold"
     elif d.supply.boosted:
@@ -795,7 +798,7 @@ def _refuse(system: System, ch) -> None:
                          "in a system yet; expected a linear coil (with an [armature] or an eddy term, not both) "
                          "or a flux-linkage curve (no [armature]; an eddy term under a voltage-mode hold), one "
                          "switch or a full bridge and a voltage-mode fixed, supply-table or closed-loop hold, or a "
-                         "current-mode hold (hysteretic on a curve)")
+                         "current-mode hold (hysteretic on a curve; no [armature])")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:

@@ -546,7 +546,7 @@ def node_columns(drive: Drive, supply: float, current, on, v_sw) -> dict:
 def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float,
                        duty: float, frequency: float, hold_time: float, r_factor: float = 1.0,
                        l_factor: float = 1.0, points: int = 8, label: str = "",
-                       method: str = "numpy") -> Waveform:
+                       method: str = "numpy", hold=None) -> Waveform:
     """:func:`actuation` with the moving armature (see :mod:`coildrive.model.armature_sim`).
 
     The same switch schedule -- peak from t = 0, whole PWM periods of hold, off -- drives
@@ -564,6 +564,15 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     On a drooping bus (``supply.source_resistance``) the peak runs on it, the bulk
     capacitor a state of the run (``bus_voltage``); the hold and the release on the stiff
     bus, as the design takes them.
+
+    ``hold``: a hold that regulates by thresholds in place of the PWM (``duty`` and
+    ``frequency`` then unused), ``hold(t_start, i0, v_on, r_on, r_off, v_off, inductance)
+    -> (time, current, switch_on, t_off, i_off, lowest, t_last_on)`` on the seated coil
+    from the end of the peak: its samples, the final turn-off's time s and current A,
+    the lowest current A and the start of the last on-time s. It needs the armature
+    seated at the end of the peak and the hold never below the stay current (else
+    ``ValueError``: a hold switched by thresholds with the armature in flight is not
+    modelled), and takes no eddy term, full bridge or mixed decay.
     """
     from .armature import params_from_loop, time_bound
     from .armature_sim import simulate
@@ -627,6 +636,9 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     schedule += release_segments(t_off)
     released = (lambda r: r.t >= t_off and r.state == "open" and not r.live)
     tr = None
+    if hold is not None and (p.eddy is not None or bridge or mixed is not None or peak_time <= 0):
+        raise ValueError("a hold switched by thresholds with an [armature] takes no eddy term, "
+                         "full bridge or mixed decay, and needs a peak")
     if peak_time > 0 and p.eddy is None:
         # Fast path: seated at the end of the peak and the hold current never below the
         # stay current -- then the hold is the closed-form PWM of the seated coil (with
@@ -636,7 +648,18 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
         if head.state == "seated":
             v, r_on, r_off, v_off = (float(a[0]) for a in (p.v_on, p.r_on, p.r_off, p.v_off))
             seated = float(p.l_closed[0]) if p.curves is None else p.coil_closed[0]
-            if mixed is not None:   # the seated coil's three segments (mixed_waveform)
+            if hold is not None:   # thresholds: the final turn-off and the bypass follow them
+                th, ih, oh, t_cut, i_cut, lowest, t_last = hold(peak_time, i0, v, r_on, r_off, v_off,
+                                                                seated)
+                t_off, t_on = t_cut, t_cut - t_last
+                t_open = (t_off - min(lead, t_on) if lead >= 0 else t_off + lag) if split else math.inf
+                if split and t_last < t_open < t_cut and not np.any(th == t_open):
+                    at = int(np.searchsorted(th, t_open))
+                    i_open = float(rise_current(t_open - t_last, float(np.interp(t_last, th, ih)),
+                                                v, r_on, seated))
+                    th, ih, oh = (np.insert(th, at, t_open), np.insert(ih, at, i_open),
+                                  np.insert(oh, at, 1.0))
+            elif mixed is not None:   # the seated coil's three segments (mixed_waveform)
                 from .mixed_waveform import mixed_hold_samples, segments_of
 
                 th, ih, oh, _, t_cut, i_cut, _ = mixed_hold_samples(
@@ -647,7 +670,7 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
                 th, ih, oh, t_cut, i_cut, starts = hold_samples(
                     peak_time, i0, v, r_on, r_off, v_off, seated, duty, frequency, hold_time, points)
                 lowest = float(np.min(starts))
-            if split and t_cut - t_on < t_open < t_cut and not np.any(th == t_open):
+            if hold is None and split and t_cut - t_on < t_open < t_cut and not np.any(th == t_open):
                 # a sample where the bypass opens, inside the last on-time
                 at = int(np.searchsorted(th, t_open))
                 i_open = float(rise_current(t_open - (t_cut - t_on), float(starts[-1]), v, r_on,
@@ -677,6 +700,10 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
                 live=bool(head.current[-1] > 0), method=method, points=points, stop=released,
                 release_params=p_rel, t0=peak_time)
             tr = _joined(head, rest, float(p.v_on[0]))
+    if tr is None and hold is not None:
+        raise ValueError("the armature is not seated at the end of the peak, or the hold's "
+                         "current falls below the stay current: a hold switched by thresholds "
+                         "with the armature in flight is not modelled")
     if tr is None and peak_time > 0 and p_peak is not p and p.eddy is not None:
         # an eddy term on the drooping bus: the peak on it, then on from its end state on
         # the stiff bus (the terminal current steps with the bus there, a row each side)
