@@ -126,6 +126,7 @@ def predict_pulse(design, name: str, supply: float, coil_temp: float, zero_curre
     from ..design.latch import rise_current_at, winding_drive
     from ..model.circuit import loop
     from ..model.rl import decay_time
+    from ..model.flux import incremental_at
 
     p = next(x for x in design.latch.pulses if x.name == name)
     wd = winding_drive(design.drive, name == "reset")
@@ -135,12 +136,14 @@ def predict_pulse(design, name: str, supply: float, coil_temp: float, zero_curre
         i_end = float(rise_current_at(wd, lp, p.time_s)[0])
     else:
         i_end = _seated_end(wd, lp, p.time_s, supply, coil_temp)
-    ind = float(lp.inductance[0]) if np.ndim(lp.inductance) else float(lp.inductance)
-    slope = max((float(lp.v_on[0]) - float(lp.r_on[0]) * i_end) / ind, 0.0)
+    # a flux-linkage curve's slopes take its incremental inductance where they are read
+    ind = lp.inductance
     level = min(zero_current, i_end)
+    l_end, l_level = (float(np.ravel(incremental_at(ind, i))[0]) for i in (i_end, level))
+    slope = max((float(lp.v_on[0]) - float(lp.r_on[0]) * i_end) / l_end, 0.0)
     r_off, v_off = float(np.ravel(rel.r_off)[0]), float(np.ravel(rel.v_off)[0])
-    t_zero = float(decay_time(level, i_end, r_off, v_off, ind))
-    fall = (r_off * level + v_off) / ind
+    t_zero = float(np.ravel(decay_time(level, i_end, r_off, v_off, ind))[0])
+    fall = (r_off * level + v_off) / l_level
     return {"length_s": p.time_s, "end_current_a": i_end, "slope_a_s": slope, "time_to_zero_s": t_zero,
             "code_time_s": resolution / fall}
 

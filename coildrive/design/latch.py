@@ -22,6 +22,11 @@ interval between pulses (start to start) is the longest of: the pulse and its de
 zero, the coil's temperature (:mod:`coildrive.model.latch`: the larger pulse's copper
 heat every interval, from the hottest ambient, up to ``thermal.max_coil_temp``), and the
 capacitor's recharge to the bus the pulses were designed from.
+
+A flux-linkage curve (the set winding's, or the bridge's one coil's) takes every segment
+on the curve (:mod:`coildrive.model.flux`; on a drooping bus :mod:`coildrive.model.flux_bus`),
+the on-time's integrals by :func:`coildrive.model.flux.rise_integrals` (exact over a flat
+top), and ``stored_j`` is ``int i dpsi`` (docs/design-method.md, *A saturating coil*).
 """
 
 from __future__ import annotations
@@ -37,9 +42,11 @@ from .. import __version__
 from ..config import Drive
 from ..jsondoc import document_head, json_ready
 from ..model import latch as latch_model
-from ..model import supply as bus_model
 from ..model.bridge import pump_up
 from ..model.circuit import freewheel_element_energy, full_bridge, loop, open_inductance
+from ..model.eddy import EddyCoil, stored_energy
+from ..model.flux import FluxCoil
+from ..model.flux import rise_integrals as flux_rise_integrals
 from ..model.rl import decay_integrals, decay_time, rise_current, rise_integrals
 from ..model.topology import topology_of
 from .checks import SAFETY_CAUTION
@@ -48,7 +55,7 @@ from .datasheet import derived_values
 from .figures import worst
 from .peak import _ticks, requirement
 from .result import Check, Verdict
-from .supply import rise_time, steady_current
+from .supply import bus_at, model_of, rise_time, steady_current
 
 
 @dataclass(frozen=True)
@@ -66,7 +73,10 @@ class PulseResult:
     copper, pulse and decay), ``switch_sense_j`` (the switches and the sense resistor),
     ``freewheel_j`` (the freewheel path: a bridge's two body diodes), ``returned_j`` (back
     to the bus: a bridge's fast decay; 0 otherwise); ``supply_j`` is the sum of the other
-    four. ``decay_time_s``: after the pulse, the longest time to zero current.
+    four. ``stored_j``: the energy in the coil's field when the pulse ends (there), which
+    its decay takes out again: ``int_0^I i dpsi`` on a flux-linkage curve (``I psi(I) -
+    W'(I)``), ``1/2 L I^2`` for a linear coil (the magnetising branch's with an eddy
+    term). ``decay_time_s``: after the pulse, the longest time to zero current.
     ``peak_switch_voltage_v``: the switch's highest voltage at the pulse's end (a bus
     pumped by a bridge's fast decay with ``supply.sink = false`` included).
     ``droop_v``: how far a pulse from the capacitor pulls the bus down (0 on a stiff bus);
@@ -112,6 +122,7 @@ class PulseResult:
     recharge_time_s: float
     recharge_corner: str
     lowest_node_v: float | None = None
+    stored_j: float = 0.0
     armature_j: float = 0.0
     seat_time_s: float | None = None
     seat_corner: str = ""
@@ -294,6 +305,7 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     sw_sense = n_sw * drive.switch.on_resistance * s_on + r_sense * (s_on + (s_d if sense_decay else 0.0))
     fw = freewheel_element_energy(wd, rel, q_d, s_d)
     returned = v * q_d if bridge else 0.0 * q_d
+    stored = stored_energy(ind.magnetising if isinstance(ind, EddyCoil) else ind, i_top)
     # the armature's share: what the supply gave that no element took (zero current at both ends)
     moved = supply_e - copper - sw_sense - fw - returned if pin is not None and ticks else 0.0 * supply_e
     k_e = worst(supply_e)
@@ -320,8 +332,8 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
         s = drive.supply
         full = loop(wd, np.where(pts.supply < drive.supply.max, drive.supply.min, pts.supply), pts.temp,
                     pts.r_factor, pts.l_factor, sense_factor=pts.sense_factor)
-        b = bus_model.bus(full.v_on, s.source_resistance, s.capacitance, full.r_on, full.inductance)
-        low, _ = bus_model.lowest_bus(np.full(full.v_on.shape, t_long), b)
+        b = bus_at(wd, full, full.inductance)   # a curve's: model.flux_bus
+        low, _ = model_of(b).lowest_bus(np.full(full.v_on.shape, t_long), b)
         dv = full.v_on - low
         t_rc = latch_model.recharge_time(dv, full.v_on, lt.recharge_tolerance, s.source_resistance,
                                          s.capacitance)
@@ -335,6 +347,7 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
         force_time_s=float(np.max(t_force)), governed_by=governed,
         end_current_a=float(np.min(i_end)) if ticks else 0.0, not_reached=not_reached,
         supply_j=float(supply_e[k_e]), copper_j=float(copper[k_e]), switch_sense_j=float(sw_sense[k_e]),
+        stored_j=float(np.broadcast_to(stored, supply_e.shape)[k_e]),
         freewheel_j=float(fw[k_e]), returned_j=float(returned[k_e]), energy_corner=pts.label(k_e),
         decay_time_s=float(np.max(t_zero)), peak_switch_voltage_v=v_sw_top,
         switch_voltage_corner=pts.label(k_v), droop_v=droop, recharge_time_s=recharge,
@@ -361,7 +374,11 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
 
 def plain_pulse(lp, t):
     """A pulse of ``t`` s from zero current on a stiff bus at the points of ``lp`` (the RL
-    rise): its current at the end A, ``int i dt`` A*s and ``int i^2 dt`` A^2*s."""
+    rise; a flux-linkage curve's by :func:`coildrive.model.flux.rise_integrals`, which keeps
+    a pulse long past its rise exact): its current at the end A, ``int i dt`` A*s and
+    ``int i^2 dt`` A^2*s."""
+    if isinstance(lp.inductance, FluxCoil):
+        return flux_rise_integrals(lp.inductance, t, 0.0, lp.v_on, lp.r_on)
     q, sq = rise_integrals(t, 0.0, lp.v_on, lp.r_on, lp.inductance)
     return rise_current(t, 0.0, lp.v_on, lp.r_on, lp.inductance), q, sq
 

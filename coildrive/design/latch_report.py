@@ -42,7 +42,8 @@ def latch_table(d: LatchDesign) -> Table:
                   escape(f"from the supply ({p.energy_corner}): copper {p.copper_j * 1e3:.4g} mJ, switches + "
                          f"sense {p.switch_sense_j * 1e3:.4g} mJ, freewheel path {p.freewheel_j * 1e3:.4g} mJ, "
                          f"back to the bus {p.returned_j * 1e3:.4g} mJ"
-                         + (f", the armature {p.armature_j * 1e3:.4g} mJ" if p.armature_j else "")))
+                         + (f", the armature {p.armature_j * 1e3:.4g} mJ" if p.armature_j else "")
+                         + f"; in the field at its end {p.stored_j * 1e3:.4g} mJ"))
         t.add_row(f"  after the {p.name} pulse", f"{p.decay_time_s * 1e3:.4g} ms",
                   escape(f"to zero current; switches up to {p.peak_switch_voltage_v:.4g} V "
                          f"({p.switch_voltage_corner})"
