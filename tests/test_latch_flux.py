@@ -257,6 +257,16 @@ def test_pulse_from_the_capacitor_on_the_curve_matches_solve_ivp(tmp_path):
                                    (y[0] - r * y[1]) / (lf * float(ld(y[1])))],
                     (0.0, p.shortest_s), [v, 0.0], method="Radau", rtol=1e-10, atol=1e-13)
     assert p.end_current_a == pytest.approx(float(sol.y[1, -1]), rel=1e-3)
+    # the recharge at its corner: the longest pulse from a full capacitor, its lowest bus
+    # (solve_ivp as above), then R_s C ln(1 + dV / (tol V_s)) (docs/design-method.md)
+    v, temp, rf, lf = _corner(p.recharge_corner)
+    r = float(loop(drive, v, temp, rf, lf).r_on)
+    low = solve_ivp(lambda _t, y: [((v - y[0]) / s.source_resistance - y[1]) / s.capacitance,
+                                   (y[0] - r * y[1]) / (lf * float(ld(y[1])))],
+                    (0.0, p.time_s), [v, 0.0], method="Radau", rtol=1e-10, atol=1e-13, max_step=p.time_s / 400)
+    tol = drive.latch.recharge_tolerance
+    t_rc = s.source_resistance * s.capacitance * np.log1p((v - float(np.min(low.y[0]))) / (tol * v))
+    assert p.recharge_time_s == pytest.approx(t_rc, rel=1e-3)
     # the simulated pulse (model.flux_bus) agrees at the nominal supply with the design's rise
     r_csv = run_cli("simulate", str(path), "--supply", "24", "--coil-temp", "25", "--csv",
                     str(tmp_path / "relay.csv"))
