@@ -1753,9 +1753,6 @@ def _latch_drive(source, path, data, brd, coil, sheet, supply, ambient, thermal,
                     ("coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance",
                      "a flux-linkage curve and an eddy-current term together (a curve or an eddy term, "
                      "not both)"))
-    elif pull_in.compensate:
-        key, why = "pull_in.compensate", ("a supply-compensated peak (its header has no table of "
-                                          "pulse lengths against the measured supply)")
     elif thermal.resistance > 0 and not thermal.capacity > 0:
         key, why = "thermal.capacity", ("no heat capacity (the pulses' heat and the interval between "
                                         "them need it: give thermal.capacity or time_constant)")

@@ -123,19 +123,19 @@ def predict_pulse(design, name: str, supply: float, coil_temp: float, zero_curre
     degC and the design's nominal R and L: ``length_s``, ``end_current_a``, the slope at the
     end ``slope_a_s`` (A/s), ``time_to_zero_s`` (down to ``zero_current`` A) and the time
     one code ``resolution`` A takes there, ``code_time_s``."""
-    from ..design.latch import rise_current_at, winding_drive
+    from ..design.latch import firmware_pulse, rise_current_at, winding_drive
     from ..model.circuit import loop
     from ..model.rl import decay_time
     from ..model.flux import incremental_at
 
-    p = next(x for x in design.latch.pulses if x.name == name)
+    length = firmware_pulse(design, name, supply)   # a compensated pulse: the entry read there
     wd = winding_drive(design.drive, name == "reset")
     lp = loop(wd, np.array([supply]), np.array([coil_temp]), 1.0, 1.0)
     rel = loop(wd, np.array([supply]), np.array([coil_temp]), 1.0, 1.0, path="release")
     if wd.armature is None:
-        i_end = float(rise_current_at(wd, lp, p.time_s)[0])
+        i_end = float(rise_current_at(wd, lp, length)[0])
     else:
-        i_end = _seated_end(wd, lp, p.time_s, supply, coil_temp)
+        i_end = _seated_end(wd, lp, length, supply, coil_temp)
     # a flux-linkage curve's slopes take its incremental inductance where they are read
     ind = lp.inductance
     level = min(zero_current, i_end)
@@ -144,7 +144,7 @@ def predict_pulse(design, name: str, supply: float, coil_temp: float, zero_curre
     r_off, v_off = float(np.ravel(rel.r_off)[0]), float(np.ravel(rel.v_off)[0])
     t_zero = float(np.ravel(decay_time(level, i_end, r_off, v_off, ind))[0])
     fall = (r_off * level + v_off) / l_level
-    return {"length_s": p.time_s, "end_current_a": i_end, "slope_a_s": slope, "time_to_zero_s": t_zero,
+    return {"length_s": length, "end_current_a": i_end, "slope_a_s": slope, "time_to_zero_s": t_zero,
             "code_time_s": resolution / fall}
 
 

@@ -58,6 +58,10 @@ class LatchDriverView:
             raise InputError(source, f"{'reset' if missing[0] == 'reset' else 'pull_in'}.current",
                              f"the {missing[0]} pulse's current is never reached at the worst corner, "
                              "expected a design that reaches it for firmware-driver")
+        if any(p.table is not None for p in lt.pulses):
+            raise InputError(source, "pull_in.compensate", "the reference latch driver runs fixed pulses and "
+                             "reads no supply: expected compensate left out for firmware-driver and emulate "
+                             "--firmware (the latch header's *_pulse_ticks_for_supply() is for your own firmware)")
         if lt.interval_ticks is None:
             raise InputError(source, "thermal.max_coil_temp", "no interval between pulses keeps the coil "
                              "below its limit (the coil_temperature check), expected one for firmware-driver")
@@ -91,7 +95,8 @@ def render_latch_driver(design: LatchDesign, prefix: str = "coil") -> dict[str, 
     ------
     InputError
         naming ``--prefix`` when it is not a C identifier, or the drive file when a pulse
-        or the interval has no design.
+        or the interval has no design, or the pulses are supply-compensated (the driver
+        reads no supply).
     """
     view = LatchDriverView(design, prefix)
     env = template_env()
