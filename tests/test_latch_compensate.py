@@ -146,3 +146,21 @@ def test_the_reference_driver_refuses_a_compensated_latch_in_one_line(tmp_path, 
     r = run_cli("design", str(path), "--json")
     doc = json.loads(r.stdout)
     assert [len(p["table"]["ticks"]) for p in doc["latch"]["pulses"]] == [16, 16]
+    r = run_cli("design", str(path))
+    assert r.returncode == 0 and "against the supply" in r.stdout, r.stdout
+
+
+def test_a_moving_armature_seats_within_every_entry(tmp_path):
+    # the bolt (examples/latching/bolt-catch-reset-winding-12v.toml): the set entries from
+    # the armature's seat time at each entry's bus; every corner's own entry still seats it
+    bolt = EXAMPLES / "latching" / "bolt-catch-reset-winding-12v.toml"
+    text = bolt.read_text().replace("[pull_in]", "[pull_in]\ncompensate = true", 1)
+    text = text.replace('board = "relay-12bit-resistor"',
+                        f'board = "{EXAMPLES.parent / "boards" / "relay-12bit-resistor.toml"}"')
+    path = tmp_path / "bolt-compensated.toml"
+    path.write_text(text)
+    d = design_latch(load_drive(path))
+    assert d.ok, [(c.name, c.detail) for c in d.checks if not c.ok]
+    p = d.latch.pulses[0]
+    assert p.table.ticks == sorted(p.table.ticks, reverse=True) and p.table.ticks[-1] < p.ticks
+    assert p.seat_time_s * p.margin <= p.time_s
