@@ -299,8 +299,13 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     governed = "" if ticks is None else ("force margin" if (by_force or 0) > (by_time or 0) else "time margin")
     table = None
     if ticks is not None and drive.pull_in.compensate:
-        table = _table(drive, wd, coil, scale, current, cm, margin, settle)
-        ticks = max(table.ticks)
+        table, v_first = _table(drive, wd, coil, scale, current, cm, margin, settle)
+        if table is None:   # the first entry's bus is a few mV under the lowest supply
+            ticks, governed = None, ""
+            not_reached = (f"not reached at {v_first:.4g} V, the lowest bus that reads the supply table's "
+                           "first code (the divider at its tolerance end)")
+        else:
+            ticks = max(table.ticks)
     t_long = ticks / rate if ticks else 0.0
     t_short = (ticks - 1) / rate if ticks else 0.0
     # each point's shortest and longest real pulse: the entries its readings select
@@ -412,10 +417,11 @@ def _requirements(wd: Drive, pts: Points, current: float, cm: float):
 
 
 def _table(drive: Drive, wd: Drive, coil, scale: float, current: float, cm: float, margin: float,
-           settle: float) -> PulseTable:
-    """The supply-compensated pulse (:class:`PulseTable`): each entry sized as the pulse is,
-    at the lowest bus that can read its code (the first at the lowest the pulses are
-    designed from), the coil at its limit, every tolerance corner."""
+           settle: float) -> tuple[PulseTable | None, float]:
+    """The supply-compensated pulse (:class:`PulseTable`) and the first entry's bus (V):
+    each entry sized as the pulse is, at the lowest bus that can read its code (the first
+    at the lowest the pulses are designed from, or lower), the coil at its limit, every
+    tolerance corner. ``None`` when the first entry's current is never reached there."""
     volts, codes, design_v = table_supplies(drive)
     design_v = np.array(design_v, float)
     design_v[0] = min(design_v[0], drive.supply.min * scale)
@@ -425,11 +431,13 @@ def _table(drive: Drive, wd: Drive, coil, scale: float, current: float, cm: floa
     m = len(codes)
     t_req, t_force = t_req.reshape(m, -1), t_force.reshape(m, -1)
     ticks = [requirement(drive, t_req[e], t_force[e], margin, settle)[0] for e in range(m)]
+    if ticks[0] is None:
+        return None, float(design_v[0])
     # a higher entry never needs more than a lower one (the rise only quickens with the bus);
     # an entry whose current is never reached (none, above the lowest's) keeps the lowest's
     ticks = [t if t is not None else ticks[0] for t in ticks]
     return PulseTable([float(v) for v in volts], [int(c) for c in codes], [int(t) for t in ticks],
-                      [float(v) for v in design_v])
+                      [float(v) for v in design_v]), float(design_v[0])
 
 
 def table_lengths(drive: Drive, table: PulseTable, supply) -> tuple[np.ndarray, np.ndarray]:
