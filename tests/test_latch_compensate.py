@@ -180,6 +180,22 @@ def test_the_reference_driver_runs_the_entries_on_the_host_avr_and_cortex(tmp_pa
 
 
 @pytest.mark.compiler
+def test_the_compensated_driver_compiles_warning_free_as_c11_and_cplusplus(tmp_path, design):
+    # the host, simavr and QEMU runs above build it as C99 (tests/test_cross_compile.py's flags)
+    from coildrive.codegen.latch_driver import render_latch_driver
+    from test_cross_compile import STRICT, TARGETS
+
+    for file, text in render_latch_driver(design[1], "valve").items():
+        (tmp_path / file).write_text(text)
+    for target in ("gcc-c11", "g++-c++11"):
+        compiler, flags, _ = TARGETS[target]
+        r = subprocess.run([require_tool(compiler), *STRICT, *flags, "-I", str(tmp_path), "-c",
+                            str(tmp_path / "valve_driver.c"), "-o", str(tmp_path / f"{target}.o")],
+                           capture_output=True, text=True, timeout=120)
+        assert r.returncode == 0 and r.stderr == "", f"{target}:\n{r.stderr}"
+
+
+@pytest.mark.compiler
 def test_firmware_driver_in_the_loop_runs_the_entry_of_its_supply(tmp_path, design, monkeypatch):
     from coildrive.bench.latch_firmware_device import LatchFirmwareDevice
     from coildrive.codegen.host_build import build_latch_firmware
