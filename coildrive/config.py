@@ -1766,12 +1766,12 @@ def _latch_drive(source, path, data, brd, coil, sheet, supply, ambient, thermal,
         key = "coil.operate_time" if coil.operate_time else "coil.release_time"
         why = ("the datasheet's operate or release time: they time a monostable coil's peak and "
                "release, which it does not have")
-    elif coil.flux_current:
-        key, why = "coil.flux_current", ("a flux-linkage curve (its pulses would need the curve's "
-                                         "segments at every corner)")
-    elif pull_in.compensate:
-        key, why = "pull_in.compensate", ("a supply-compensated peak (its header has no table of "
-                                          "pulse lengths against the measured supply)")
+    elif coil.flux_current and (armature is not None or coil.eddy_resistance):
+        key, why = (("armature", "a flux-linkage curve and a moving [armature] together (the set "
+                     "pulse's seat run and seated rise take the linear L(x))") if armature is not None else
+                    ("coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance",
+                     "a flux-linkage curve and an eddy-current term together (a curve or an eddy term, "
+                     "not both)"))
     elif thermal.resistance > 0 and not thermal.capacity > 0:
         key, why = "thermal.capacity", ("no heat capacity (the pulses' heat and the interval between "
                                         "them need it: give thermal.capacity or time_constant)")

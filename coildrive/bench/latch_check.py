@@ -123,25 +123,28 @@ def predict_pulse(design, name: str, supply: float, coil_temp: float, zero_curre
     degC and the design's nominal R and L: ``length_s``, ``end_current_a``, the slope at the
     end ``slope_a_s`` (A/s), ``time_to_zero_s`` (down to ``zero_current`` A) and the time
     one code ``resolution`` A takes there, ``code_time_s``."""
-    from ..design.latch import rise_current_at, winding_drive
+    from ..design.latch import firmware_pulse, rise_current_at, winding_drive
     from ..model.circuit import loop
     from ..model.rl import decay_time
+    from ..model.flux import incremental_at
 
-    p = next(x for x in design.latch.pulses if x.name == name)
+    length = firmware_pulse(design, name, supply)   # a compensated pulse: the entry read there
     wd = winding_drive(design.drive, name == "reset")
     lp = loop(wd, np.array([supply]), np.array([coil_temp]), 1.0, 1.0)
     rel = loop(wd, np.array([supply]), np.array([coil_temp]), 1.0, 1.0, path="release")
     if wd.armature is None:
-        i_end = float(rise_current_at(wd, lp, p.time_s)[0])
+        i_end = float(rise_current_at(wd, lp, length)[0])
     else:
-        i_end = _seated_end(wd, lp, p.time_s, supply, coil_temp)
-    ind = float(lp.inductance[0]) if np.ndim(lp.inductance) else float(lp.inductance)
-    slope = max((float(lp.v_on[0]) - float(lp.r_on[0]) * i_end) / ind, 0.0)
+        i_end = _seated_end(wd, lp, length, supply, coil_temp)
+    # a flux-linkage curve's slopes take its incremental inductance where they are read
+    ind = lp.inductance
     level = min(zero_current, i_end)
+    l_end, l_level = (float(np.ravel(incremental_at(ind, i))[0]) for i in (i_end, level))
+    slope = max((float(lp.v_on[0]) - float(lp.r_on[0]) * i_end) / l_end, 0.0)
     r_off, v_off = float(np.ravel(rel.r_off)[0]), float(np.ravel(rel.v_off)[0])
-    t_zero = float(decay_time(level, i_end, r_off, v_off, ind))
-    fall = (r_off * level + v_off) / ind
-    return {"length_s": p.time_s, "end_current_a": i_end, "slope_a_s": slope, "time_to_zero_s": t_zero,
+    t_zero = float(np.ravel(decay_time(level, i_end, r_off, v_off, ind))[0])
+    fall = (r_off * level + v_off) / l_level
+    return {"length_s": length, "end_current_a": i_end, "slope_a_s": slope, "time_to_zero_s": t_zero,
             "code_time_s": resolution / fall}
 
 

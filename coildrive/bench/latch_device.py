@@ -9,7 +9,8 @@ shorter ``--period`` is refused). Each pulse is its own recording: from
 PAUSE over the idle samples between the pulses.
 
 Each pulse (:func:`coildrive.model.latch_waveform.pulse`) switches on from zero for the
-design's pulse length (whole scheduler ticks), from a full capacitor on a drooping bus,
+design's pulse length (whole scheduler ticks; with ``pull_in.compensate`` the table entry
+its supply reads), from a full capacitor on a drooping bus,
 and decays to zero through the release path. Events: ON at its start (``value`` 0 for
 the set pulse, 1 for the reset pulse: ``docs/protocol.md``), OFF at its end; SUPPLY and
 TEMPERATURE as for any actuation.
@@ -40,7 +41,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..config import Drive
-from ..design.latch import LatchDesign, winding_drive
+from ..design.latch import LatchDesign, firmware_pulse, winding_drive
 from .capture_file import CaptureEvent
 from .device import MIN_AUTO_PERIOD, DeviceOptions, OptionError, VirtualDevice, _Recording
 from .messages import EventKind, Opcode, ReplyStatus
@@ -84,7 +85,6 @@ class LatchDevice(VirtualDevice):
             raise ValueError(f"the design has no {missing[0]} pulse (its current is never reached)" if missing
                              else "the design has no safe interval between pulses (coil_temperature check)")
         self._set_board(drive, options)
-        self.pulse_ticks = {p.name: p.ticks for p in lt.pulses}
         self.interval = lt.interval_ticks / self.tick_rate
         self._drives: dict[str, Drive] = {"set": drive, "reset": winding_drive(drive, True)}
         self._next_kind = "set"
@@ -99,8 +99,9 @@ class LatchDevice(VirtualDevice):
             self.period = max(self.period, MIN_AUTO_PERIOD, math.ceil(self.interval * 1e3 - 1e-9) / 1e3)
 
     def pulse_time(self, kind: str) -> float:
-        """The pulse's length, s (whole scheduler ticks)."""
-        return self.pulse_ticks[kind] / self.tick_rate
+        """The pulse's length, s (whole scheduler ticks): a supply-compensated pulse's is the
+        table entry for the device's supply (:func:`coildrive.design.latch.firmware_pulse`)."""
+        return firmware_pulse(self.design, kind, self.supply)
 
     # ------------------------------------------------------------------ physics
     def _make_waveform(self, key: tuple) -> PulseRun:

@@ -24,6 +24,7 @@ from __future__ import annotations
 import ctypes
 from pathlib import Path
 
+from ..design.figures import adc_code
 from .device import DeviceOptions, _Item
 from .latch_device import PULSE_CODE, LatchDevice
 from .messages import EventKind, Opcode, ReplyStatus
@@ -41,6 +42,8 @@ def load_latch_library(path: Path) -> ctypes.CDLL:
                             ("fil_event_kind_at", u8, [u8]), ("fil_event_value_at", ctypes.c_int32, [u8])):
         fn = getattr(lib, name)
         fn.restype, fn.argtypes = res, args
+    if hasattr(lib, "fil_supply"):   # a supply-compensated driver's reading
+        lib.fil_supply.restype, lib.fil_supply.argtypes = None, [ctypes.c_uint32]
     return lib
 
 
@@ -60,6 +63,11 @@ class LatchFirmwareDevice(LatchDevice):
         super().__init__(design, options)
         self.lib = load_latch_library(library)
         self.lib.fil_init()
+        if any(p.table is not None for p in design.latch.pulses):
+            # a supply-compensated driver reads the bus at the nominal divider, as the design's
+            # firmware_pulse does: each pulse then runs its table entry for this supply
+            b = design.drive.board
+            self.lib.fil_supply(adc_code(self.supply / b.supply_sense.divider, b.adc.reference, b.adc.bits))
         self._kind_of_mask = {m: k for k, m in masks.items()}
         self._tick = 0                   # the next tick: at (n + 1) / tick rate
         self._asked = False              # a set or reset asked and not yet started

@@ -125,7 +125,7 @@ def _simulate_latch(drive, v: float, t: float, csv: Path, r_factor: float, l_fac
                     points: int, plot: Optional[Path]) -> None:
     """``simulate`` of a latching coil: the set pulse, then the reset pulse one shortest
     interval later (``--hold-time`` does not apply)."""
-    from ..design.latch import design_latch, winding_drive
+    from ..design.latch import design_latch, firmware_pulse, winding_drive
     from ..model.latch_waveform import NotSeated, latch_actuation
 
     d = design_latch(drive)
@@ -138,15 +138,17 @@ def _simulate_latch(drive, v: float, t: float, csv: Path, r_factor: float, l_fac
         raise InputError(str(drive.source), "thermal.capacity", "one pulse heats the coil past "
                          "thermal.max_coil_temp (the coil_temperature check), so there is no interval "
                          "between pulses to simulate")
+    # the lengths the firmware runs at this supply (a compensated pulse's table entry)
+    length = {name: firmware_pulse(d, name, v) for name in by}
     try:
-        w = latch_actuation(drive, winding_drive(drive, True), v, t, by["set"].time_s, by["reset"].time_s,
+        w = latch_actuation(drive, winding_drive(drive, True), v, t, length["set"], length["reset"],
                             d.latch.interval_s, r_factor, l_factor, 40 * points)
     except NotSeated as err:   # a moving armature that does not seat at this point
         raise InputError("--supply", "", str(err)) from None
     write_atomic(csv, w.to_csv())
-    status(f"wrote {csv}: {len(w.time)} samples, set pulse {by['set'].time_s * 1e3:.4g} ms (zero at "
+    status(f"wrote {csv}: {len(w.time)} samples, set pulse {length['set'] * 1e3:.4g} ms (zero at "
            f"{w.events['set_zero'] * 1e3:.4g} ms), reset pulse at {w.events['reset'] * 1e3:.4g} ms for "
-           f"{by['reset'].time_s * 1e3:.4g} ms (zero at {w.events['reset_zero'] * 1e3:.4g} ms)")
+           f"{length['reset'] * 1e3:.4g} ms (zero at {w.events['reset_zero'] * 1e3:.4g} ms)")
     if plot is not None:
         from ..design.latch_plot import plot_latch_actuation
         write_atomic(plot, plot_latch_actuation(d, w, f"{drive.name} on {drive.board.name}: simulated at "

@@ -1,6 +1,7 @@
 """The firmware header of a latching coil: both pulse lengths and the shortest interval
-between pulses as C constants (``codegen_templates/latch_header.h.j2``). Pure: a
-:class:`~coildrive.design.latch.LatchDesign` in, text out."""
+between pulses as C constants (``codegen_templates/latch_header.h.j2``), and with
+``pull_in.compensate`` each pulse's table of ticks against the supply reading and its
+lookup function. Pure: a :class:`~coildrive.design.latch.LatchDesign` in, text out."""
 
 from __future__ import annotations
 
@@ -8,7 +9,7 @@ import math
 
 from ..design.latch import LatchDesign
 from ..resources import data_dir
-from .header import Constant, check_prefix
+from .header import Constant, c_uint_type, check_prefix
 
 
 def latch_constants(d: LatchDesign, m: str) -> list[Constant]:
@@ -28,7 +29,22 @@ def latch_constants(d: LatchDesign, m: str) -> list[Constant]:
                     f"the same in ms ({r.interval_s * 1e3:.4g} ms)"),
            Constant(f"{m}_DECAY_TICKS", math.ceil(max(p.decay_time_s for p in r.pulses) * r.tick_rate_hz - 1e-9),
                     "after a pulse the current is zero within this (never start the other polarity sooner)")]
+    if s.table is not None:
+        out.append(Constant(f"{m}_PULSE_COMPENSATED", 1, "each pulse's ticks looked up against the supply "
+                            "reading (the *_PULSE_TICKS above: the longest entry)"))
+        out += [Constant(f"{m}_{p.name.upper()}_PULSE_TABLE_LEN", len(p.table.ticks),
+                         f"entries of the {p.name} pulse's table") for p in (s, t)]
     return out
+
+
+def pulse_tables(d: LatchDesign, m: str) -> list[dict]:
+    """What the template's supply-compensated tables need, per pulse (none without a table):
+    ``name``, ``macro``, ``rows`` (code, ticks, nominal bus V), ``adc_type``, ``tick_type``."""
+    b = d.drive.board
+    return [{"name": p.name, "macro": f"{m}_{p.name.upper()}", "rows": list(zip(p.table.adc_codes, p.table.ticks,
+                                                                              p.table.supply_v)),
+             "adc_type": c_uint_type(2**b.adc.bits - 1), "tick_type": c_uint_type(max(p.table.ticks))}
+            for p in d.latch.pulses if p.table is not None]
 
 
 def generate_latch_header(design: LatchDesign, prefix: str = "COIL") -> str:
@@ -40,4 +56,5 @@ def generate_latch_header(design: LatchDesign, prefix: str = "COIL") -> str:
         loader=jinja2.FileSystemLoader(str(data_dir("codegen_templates"))),
         undefined=jinja2.StrictUndefined, keep_trailing_newline=True, trim_blocks=True, lstrip_blocks=True)
     return env.get_template("latch_header.h.j2").render(
-        d=design, m=m, guard=f"{m}_LATCH_H", constants=latch_constants(design, m))
+        d=design, m=m, guard=f"{m}_LATCH_H", constants=latch_constants(design, m), lower=m.lower(),
+        tables=pulse_tables(design, m))

@@ -22,6 +22,11 @@ interval between pulses (start to start) is the longest of: the pulse and its de
 zero, the coil's temperature (:mod:`coildrive.model.latch`: the larger pulse's copper
 heat every interval, from the hottest ambient, up to ``thermal.max_coil_temp``), and the
 capacitor's recharge to the bus the pulses were designed from.
+
+A flux-linkage curve (the set winding's, or the bridge's one coil's) takes every segment
+on the curve (:mod:`coildrive.model.flux`; on a drooping bus :mod:`coildrive.model.flux_bus`),
+the on-time's integrals by :func:`coildrive.model.flux.rise_integrals` (exact over a flat
+top), and ``stored_j`` is ``int i dpsi`` (docs/design-method.md, *A saturating coil*).
 """
 
 from __future__ import annotations
@@ -37,18 +42,37 @@ from .. import __version__
 from ..config import Drive
 from ..jsondoc import document_head, json_ready
 from ..model import latch as latch_model
-from ..model import supply as bus_model
 from ..model.bridge import pump_up
 from ..model.circuit import freewheel_element_energy, full_bridge, loop, open_inductance
+from ..model.eddy import EddyCoil, stored_energy
+from ..model.flux import FluxCoil
+from ..model.flux import rise_integrals as flux_rise_integrals
 from ..model.rl import decay_integrals, decay_time, rise_current, rise_integrals
 from ..model.topology import topology_of
 from .checks import SAFETY_CAUTION
 from .corners import tolerance_label
 from .datasheet import derived_values
-from .figures import worst
+from .envelope import supply_codes, table_index
+from .figures import adc_code, worst
 from .peak import _ticks, requirement
+from .regulation import table_supplies
 from .result import Check, Verdict
-from .supply import rise_time, steady_current
+from .supply import bus_at, model_of, rise_time, steady_current
+
+
+@dataclass(frozen=True)
+class PulseTable:
+    """A supply-compensated pulse (``pull_in.compensate``; ``design --json``
+    ``latch.pulses[].table``): scheduler ticks for each supply-sense ADC code (ascending),
+    looked up like the peak's table (the last entry whose code is at or below the reading,
+    the first below them all). ``design_supply_v``: where each entry is sized -- the lowest
+    bus that can read its code (the divider at its tolerance end), the first entry at the
+    lowest supply the pulses are designed from; ``supply_v`` the entries' nominal buses."""
+
+    supply_v: list[float]
+    adc_codes: list[int]
+    ticks: list[int]
+    design_supply_v: list[float]
 
 
 @dataclass(frozen=True)
@@ -66,7 +90,10 @@ class PulseResult:
     copper, pulse and decay), ``switch_sense_j`` (the switches and the sense resistor),
     ``freewheel_j`` (the freewheel path: a bridge's two body diodes), ``returned_j`` (back
     to the bus: a bridge's fast decay; 0 otherwise); ``supply_j`` is the sum of the other
-    four. ``decay_time_s``: after the pulse, the longest time to zero current.
+    four. ``stored_j``: the energy in the coil's field when the pulse ends (there), which
+    its decay takes out again: ``int_0^I i dpsi`` on a flux-linkage curve (``I psi(I) -
+    W'(I)``), ``1/2 L I^2`` for a linear coil (the magnetising branch's with an eddy
+    term). ``decay_time_s``: after the pulse, the longest time to zero current.
     ``peak_switch_voltage_v``: the switch's highest voltage at the pulse's end (a bus
     pumped by a bridge's fast decay with ``supply.sink = false`` included).
     ``droop_v``: how far a pulse from the capacitor pulls the bus down (0 on a stiff bus);
@@ -112,6 +139,8 @@ class PulseResult:
     recharge_time_s: float
     recharge_corner: str
     lowest_node_v: float | None = None
+    stored_j: float = 0.0
+    table: PulseTable | None = None
     armature_j: float = 0.0
     seat_time_s: float | None = None
     seat_corner: str = ""
@@ -211,13 +240,17 @@ def _points(drive: Drive, coil, scale: float) -> Points:
     """Every corner of the pulses: the supply's ends (the lower one times ``scale``), the
     coil cold (``ambient.min``) and at its limit, and both ends of each tolerance (the
     coil's resistance and inductance, the sense resistor's)."""
+    grid = list(itertools.product((drive.supply.min * scale, drive.supply.max),
+                                  (drive.ambient.min, drive.thermal.max_coil_temp), *_tolerances(drive, coil)))
+    return Points(*(np.array(a, float) for a in zip(*grid)))
+
+
+def _tolerances(drive: Drive, coil) -> tuple[list, list, list]:
+    """Both ends of the coil's resistance and inductance tolerances and the sense
+    resistor's (factors)."""
     rt, lt = coil.resistance_tolerance, coil.inductance_tolerance
     st = drive.board.sense.resistance_tolerance
-    grid = list(itertools.product((drive.supply.min * scale, drive.supply.max),
-                                  (drive.ambient.min, drive.thermal.max_coil_temp),
-                                  sorted({1 - rt, 1 + rt}), sorted({1 - lt, 1 + lt}),
-                                  sorted({1 - st, 1 + st})))
-    return Points(*(np.array(a, float) for a in zip(*grid)))
+    return sorted({1 - rt, 1 + rt}), sorted({1 - lt, 1 + lt}), sorted({1 - st, 1 + st})
 
 
 def winding_drive(drive: Drive, reset: bool) -> Drive:
@@ -247,15 +280,7 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     droops = drive.supply.droops
     scale = 1.0 - lt.recharge_tolerance if droops else 1.0
     pts = _points(drive, coil, scale)
-    lp = pulse_loop(wd, pts)
-    pin = p_arm = None
-    if wd.armature is not None:   # the set pulse seats the armature (module docstring)
-        pin, p_arm = seat_run(wd, lp, pts)
-        t_req = np.where(pin.status == 0, pin.seat_time, np.inf)
-        t_force = rise_time(wd, lp, cm * current, open_inductance(wd, pts.l_factor))
-    else:
-        t_req = rise_time(wd, lp, current, lp.inductance)
-        t_force = rise_time(wd, lp, cm * current, lp.inductance)
+    lp, t_req, t_force, pin, p_arm = _requirements(wd, pts, current, cm)
     ticks, by_time, by_force = requirement(drive, t_req, t_force, margin, settle)
     rate = drive.board.tick.rate
     k_req = worst(t_req)
@@ -272,16 +297,27 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
                            "set_armature_seats check)")
         ticks = None
     governed = "" if ticks is None else ("force margin" if (by_force or 0) > (by_time or 0) else "time margin")
+    table = None
+    if ticks is not None and drive.pull_in.compensate:
+        table, v_first = _table(drive, wd, coil, scale, current, cm, margin, settle)
+        if table is None:   # the first entry's bus is a few mV under the lowest supply
+            ticks, governed = None, ""
+            not_reached = (f"not reached at {v_first:.4g} V, the lowest bus that reads the supply table's "
+                           "first code (the divider at its tolerance end)")
+        else:
+            ticks = max(table.ticks)
     t_long = ticks / rate if ticks else 0.0
     t_short = (ticks - 1) / rate if ticks else 0.0
+    # each point's shortest and longest real pulse: the entries its readings select
+    short, long_ = (t_short, t_long) if table is None else table_lengths(drive, table, pts.supply)
     # energies of the longest pulse on a stiff bus (module docstring)
     v, r_on, ind = lp.v_on, lp.r_on, lp.inductance
     if pin is not None and ticks:   # the pulse outlasts every seat time (margin >= 1)
-        i_end = after_seat(pin, p_arm, t_short, v, r_on)[0]
-        i_top, q_on, s_on = after_seat(pin, p_arm, t_long, v, r_on)
+        i_end = after_seat(pin, p_arm, short, v, r_on)[0]
+        i_top, q_on, s_on = after_seat(pin, p_arm, long_, v, r_on)
     else:
-        i_end = rise_current_at(wd, lp, t_short)
-        i_top, q_on, s_on = plain_pulse(lp, t_long)
+        i_end = rise_current_at(wd, lp, short)
+        i_top, q_on, s_on = plain_pulse(lp, long_)
     rel = release_loop(wd, pts)
     t_zero = decay_time(0.0, i_top, rel.r_off, rel.v_off, ind)
     q_d, s_d = decay_integrals(t_zero, i_top, rel.r_off, rel.v_off, ind)
@@ -294,6 +330,7 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     sw_sense = n_sw * drive.switch.on_resistance * s_on + r_sense * (s_on + (s_d if sense_decay else 0.0))
     fw = freewheel_element_energy(wd, rel, q_d, s_d)
     returned = v * q_d if bridge else 0.0 * q_d
+    stored = stored_energy(ind.magnetising if isinstance(ind, EddyCoil) else ind, i_top)
     # the armature's share: what the supply gave that no element took (zero current at both ends)
     moved = supply_e - copper - sw_sense - fw - returned if pin is not None and ticks else 0.0 * supply_e
     k_e = worst(supply_e)
@@ -320,8 +357,8 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
         s = drive.supply
         full = loop(wd, np.where(pts.supply < drive.supply.max, drive.supply.min, pts.supply), pts.temp,
                     pts.r_factor, pts.l_factor, sense_factor=pts.sense_factor)
-        b = bus_model.bus(full.v_on, s.source_resistance, s.capacitance, full.r_on, full.inductance)
-        low, _ = bus_model.lowest_bus(np.full(full.v_on.shape, t_long), b)
+        b = bus_at(wd, full, full.inductance)   # a curve's: model.flux_bus
+        low, _ = model_of(b).lowest_bus(np.full(full.v_on.shape, t_long), b)
         dv = full.v_on - low
         t_rc = latch_model.recharge_time(dv, full.v_on, lt.recharge_tolerance, s.source_resistance,
                                          s.capacitance)
@@ -335,6 +372,7 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
         force_time_s=float(np.max(t_force)), governed_by=governed,
         end_current_a=float(np.min(i_end)) if ticks else 0.0, not_reached=not_reached,
         supply_j=float(supply_e[k_e]), copper_j=float(copper[k_e]), switch_sense_j=float(sw_sense[k_e]),
+        stored_j=float(np.broadcast_to(stored, supply_e.shape)[k_e]), table=table,
         freewheel_j=float(fw[k_e]), returned_j=float(returned[k_e]), energy_corner=pts.label(k_e),
         decay_time_s=float(np.max(t_zero)), peak_switch_voltage_v=v_sw_top,
         switch_voltage_corner=pts.label(k_v), droop_v=droop, recharge_time_s=recharge,
@@ -343,15 +381,22 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
         seat_corner="" if pin is None else pts.label(k_req))
     limit = drive.switch.max_voltage * drive.switch.derating
     if pin is not None:
-        checks.append(_seats_check(drive, pin, p_arm, pts, result))
+        checks.append(_seats_check(drive, pin, p_arm, pts, result, short))
     elif reset and drive.armature is not None:
         result, check = _opens(drive, pts, t_req, result)
         checks.append(check)
-    checks.insert(0, Check(f"{name}_pulse", ticks is not None,
-                           (f"{name} pulse {ticks} ticks ({t_long * 1e3:.4g} ms, {governed}): the shortest "
-                            f"({t_short * 1e3:.4g} ms) carries {result.end_current_a:.4g} A >= "
-                            f"{cm:g} x {current:.4g} A at the worst corner") if ticks else
-                           f"the {name} pulse's current is {not_reached}"))
+    if table is None:
+        ok = ticks is not None
+        detail = (f"{name} pulse {ticks} ticks ({t_long * 1e3:.4g} ms, {governed}): the shortest "
+                  f"({t_short * 1e3:.4g} ms) carries {result.end_current_a:.4g} A >= "
+                  f"{cm:g} x {current:.4g} A at the worst corner")
+    else:   # the entries' lengths at every corner (the readings it may take there)
+        ok = result.end_current_a >= cm * current * (1 - 1e-9)
+        detail = (f"{name} pulse {min(table.ticks)}..{ticks} ticks against the supply reading "
+                  f"({len(table.ticks)} entries, at most {t_long * 1e3:.4g} ms, {governed}): the shortest "
+                  f"real pulse of the entry each corner may read carries {result.end_current_a:.4g} A >= "
+                  f"{cm:g} x {current:.4g} A at every corner")
+    checks.insert(0, Check(f"{name}_pulse", ok, detail if ticks else f"the {name} pulse's current is {not_reached}"))
     checks.append(Check(f"{name}_switch_voltage", v_sw_top <= limit,
                         f"the switches see up to {v_sw_top:.4g} V at the end of the {name} pulse "
                         f"({result.switch_voltage_corner}) vs {limit:.4g} V ({drive.switch.derating:.0%} "
@@ -359,9 +404,71 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     return result, checks
 
 
+def _requirements(wd: Drive, pts: Points, current: float, cm: float):
+    """``(loop, time to current s, time to cm x current s, seat run, its params)`` at the
+    points; with a moving armature the time to current is its seat time (module docstring)."""
+    lp = pulse_loop(wd, pts)
+    if wd.armature is None:
+        return (lp, rise_time(wd, lp, current, lp.inductance), rise_time(wd, lp, cm * current, lp.inductance),
+                None, None)
+    pin, p_arm = seat_run(wd, lp, pts)   # the set pulse seats the armature
+    return (lp, np.where(pin.status == 0, pin.seat_time, np.inf),
+            rise_time(wd, lp, cm * current, open_inductance(wd, pts.l_factor)), pin, p_arm)
+
+
+def _table(drive: Drive, wd: Drive, coil, scale: float, current: float, cm: float, margin: float,
+           settle: float) -> tuple[PulseTable | None, float]:
+    """The supply-compensated pulse (:class:`PulseTable`) and the first entry's bus (V):
+    each entry sized as the pulse is, at the lowest bus that can read its code (the first
+    at the lowest the pulses are designed from, or lower), the coil at its limit, every
+    tolerance corner. ``None`` when the first entry's current is never reached there."""
+    volts, codes, design_v = table_supplies(drive)
+    design_v = np.array(design_v, float)
+    design_v[0] = min(design_v[0], drive.supply.min * scale)
+    grid = list(itertools.product(design_v, (drive.thermal.max_coil_temp,), *_tolerances(drive, coil)))
+    pts = Points(*(np.array(a, float) for a in zip(*grid)))
+    _, t_req, t_force, _, _ = _requirements(wd, pts, current, cm)
+    m = len(codes)
+    t_req, t_force = t_req.reshape(m, -1), t_force.reshape(m, -1)
+    ticks = [requirement(drive, t_req[e], t_force[e], margin, settle)[0] for e in range(m)]
+    if ticks[0] is None:
+        return None, float(design_v[0])
+    # a higher entry never needs more than a lower one (the rise only quickens with the bus);
+    # an entry whose current is never reached (none, above the lowest's) keeps the lowest's
+    ticks = [t if t is not None else ticks[0] for t in ticks]
+    return PulseTable([float(v) for v in volts], [int(c) for c in codes], [int(t) for t in ticks],
+                      [float(v) for v in design_v]), float(design_v[0])
+
+
+def table_lengths(drive: Drive, table: PulseTable, supply) -> tuple[np.ndarray, np.ndarray]:
+    """``(shortest, longest)`` real pulse (s) at bus voltages ``supply``: the entries its
+    lowest and highest readings select (:func:`coildrive.design.envelope.supply_codes`; the
+    shortest one tick less)."""
+    rate = drive.board.tick.rate
+    low, high = supply_codes(drive, supply)
+    ent = np.asarray(table.ticks, float)
+    return (ent[table_index(table.adc_codes, high)] - 1) / rate, ent[table_index(table.adc_codes, low)] / rate
+
+
+def firmware_pulse(d: LatchDesign, name: str, supply: float) -> float:
+    """The length (s) of pulse ``name`` the firmware runs at bus voltage ``supply`` (its
+    reading at the nominal divider, looked up as the header's function does; without a
+    table the fixed pulse)."""
+    p = next(x for x in d.latch.pulses if x.name == name)
+    if p.table is None:
+        return p.time_s
+    b = d.drive.board
+    code = adc_code(supply / b.supply_sense.divider, b.adc.reference, b.adc.bits)
+    return p.table.ticks[int(table_index(p.table.adc_codes, code))] / b.tick.rate
+
+
 def plain_pulse(lp, t):
     """A pulse of ``t`` s from zero current on a stiff bus at the points of ``lp`` (the RL
-    rise): its current at the end A, ``int i dt`` A*s and ``int i^2 dt`` A^2*s."""
+    rise; a flux-linkage curve's by :func:`coildrive.model.flux.rise_integrals`, which keeps
+    a pulse long past its rise exact): its current at the end A, ``int i dt`` A*s and
+    ``int i^2 dt`` A^2*s."""
+    if isinstance(lp.inductance, FluxCoil):
+        return flux_rise_integrals(lp.inductance, t, 0.0, lp.v_on, lp.r_on)
     q, sq = rise_integrals(t, 0.0, lp.v_on, lp.r_on, lp.inductance)
     return rise_current(t, 0.0, lp.v_on, lp.r_on, lp.inductance), q, sq
 
@@ -397,15 +504,24 @@ def after_seat(pin, p, t, v, r_on):
             pin.seat_square + sq)
 
 
-def _seats_check(drive: Drive, pin, p, pts: Points, r: PulseResult) -> Check:
+def _seats_check(drive: Drive, pin, p, pts: Points, r: PulseResult, short=None) -> Check:
     """``set_armature_seats``: the armature rests on the seat at every corner before the
-    shortest set pulse ends (the catch then holds it)."""
+    shortest set pulse ends (the catch then holds it); ``short`` (s, per corner): that
+    pulse where it differs (a compensated pulse's entries)."""
     bad = np.flatnonzero(pin.status != 0)
+    late = np.flatnonzero((pin.status == 0) & (pin.seat_time > (r.shortest_s if short is None else short)))
+    if bad.size == 0 and late.size and r.ticks is not None:
+        k = int(late[0])
+        return Check("set_armature_seats", False,
+                     f"the armature rests on the seat {float(pin.seat_time[k]) * 1e3:.4g} ms after switch-on at "
+                     f"{pts.label(k)}, after the shortest set pulse there ends ({late.size} of "
+                     f"{len(pin.status)} corners)")
     if bad.size == 0:
         seat = (f"the armature rests on the seat {r.seat_time_s * 1e3:.4g} ms after switch-on at the "
                 f"latest ({r.seat_corner})")
         return Check("set_armature_seats", r.ticks is not None,
-                     f"{seat}, within the shortest set pulse ({r.shortest_s * 1e3:.4g} ms)" if r.ticks else
+                     (f"{seat}, within the shortest set pulse ({r.shortest_s * 1e3:.4g} ms)" if r.table is None else
+                      f"{seat}, within the shortest set pulse of the entry each corner may read") if r.ticks else
                      f"{seat}, but the set pulse has no length (see the set_pulse check)")
     k = int(bad[0])
     why = ("the coil never reaches the current that starts it off the open stop"
@@ -547,12 +663,12 @@ def _cautions(drive: Drive, r: LatchResult) -> list[str]:
 def latch_waveforms(d: LatchDesign) -> dict:
     """The set and reset pulses the plot draws, by label: at the nominal supply with the
     coil at the hottest ambient, and at the pulses' worst corner (the lowest supply the
-    design takes, the coil at its limit, R and L high); the reset pulse one interval after
-    the set pulse (:func:`coildrive.model.latch_waveform.latch_actuation`)."""
+    design takes, the coil at its limit, R and L high), each pulse as long as the firmware
+    runs it there (:func:`firmware_pulse`); the reset pulse one interval after the set
+    pulse (:func:`coildrive.model.latch_waveform.latch_actuation`)."""
     from ..model.latch_waveform import latch_actuation
 
     drive = d.drive
-    by = {p.name: p for p in d.latch.pulses}
     scale = 1.0 - drive.latch.recharge_tolerance if drive.supply.droops else 1.0
     rt, lt = drive.coil.resistance_tolerance, drive.coil.inductance_tolerance
     points = {f"nominal: {drive.supply.nominal:g} V, coil {drive.ambient.max:g} degC":
@@ -562,6 +678,6 @@ def latch_waveforms(d: LatchDesign) -> dict:
               (drive.supply.min * scale, drive.thermal.max_coil_temp, 1 + rt, 1 + lt)}
     # no safe interval (a failing coil_temperature check): the reset right after the set decays
     gap = d.latch.interval_s if math.isfinite(d.latch.interval_s) else 0.0
-    return {label: latch_actuation(drive, winding_drive(drive, True), v, t, by["set"].time_s,
-                                   by["reset"].time_s, gap, rf, lf, 400)
+    return {label: latch_actuation(drive, winding_drive(drive, True), v, t, firmware_pulse(d, "set", v),
+                                   firmware_pulse(d, "reset", v), gap, rf, lf, 400)
             for label, (v, t, rf, lf) in points.items()}

@@ -28,7 +28,7 @@ import numpy as np
 from ..config import Drive
 from ..model.rl import decay_time
 from .latch import (LatchDesign, Points, after_seat, plain_pulse, pulse_loop, release_loop,
-                    rise_current_at, seat_run, winding_drive)
+                    rise_current_at, seat_run, table_lengths, winding_drive)
 from .montecarlo import CHUNK, PERCENTILES, factors, summary
 from .supply import rise_time
 
@@ -36,8 +36,9 @@ from .supply import rise_time
 FIGURES = ("time_to_current_s", "end_current_a", "supply_j", "decay_time_s")
 
 
-def _figures(wd: Drive, pts: Points, current: float, t_short: float, t_long: float) -> tuple:
-    """The :data:`FIGURES` of one pulse at the points; with a moving armature (the set
+def _figures(wd: Drive, pts: Points, current: float, t_short, t_long) -> tuple:
+    """The :data:`FIGURES` of one pulse at the points (``t_short``/``t_long``: its shortest
+    and longest length s, per point or one for all); with a moving armature (the set
     pulse) the time is the seat time and the energy and the decay NaN where it is not
     seated by the longest pulse's end."""
     lp = pulse_loop(wd, pts)
@@ -82,11 +83,14 @@ def latch_monte_carlo(d: LatchDesign, samples: int, seed: int = 1, chunk: int = 
         wd = winding_drive(drive, p.name == "reset")
         rf, lf = tol[p.winding]
         values = tuple(np.full(samples, np.nan) for _ in FIGURES)
+        # each sample's shortest and longest pulse (a compensated one's: the entries its readings select)
+        short, long_ = (np.broadcast_to(x, supply.shape) for x in
+                        ((p.shortest_s, p.time_s) if p.table is None else table_lengths(drive, p.table, supply)))
         if p.ticks is not None:
             for start in range(0, samples, chunk):
                 sl = slice(start, min(start + chunk, samples))
                 pts = Points(supply[sl], temp[sl], rf[sl], lf[sl], sense[sl])
-                for arr, got in zip(values, _figures(wd, pts, p.current_a, p.shortest_s, p.time_s)):
+                for arr, got in zip(values, _figures(wd, pts, p.current_a, short[sl], long_[sl])):
                     arr[sl] = got
         figs = dict(zip(FIGURES, values))
         out["pulses"][p.name] = {name: summary(v) for name, v in figs.items()}
@@ -94,5 +98,5 @@ def latch_monte_carlo(d: LatchDesign, samples: int, seed: int = 1, chunk: int = 
         out["failures"][f"{p.name}_not_reached"] = int(np.sum(~(end >= p.current_a)))
         out["failures"][f"{p.name}_below_margin"] = int(np.sum(~(end >= p.current_margin * p.current_a)))
         if wd.armature is not None:
-            out["failures"][f"{p.name}_not_seated"] = int(np.sum(~(figs["time_to_current_s"] <= p.shortest_s)))
+            out["failures"][f"{p.name}_not_seated"] = int(np.sum(~(figs["time_to_current_s"] <= short)))
     return out

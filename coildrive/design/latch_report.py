@@ -34,6 +34,12 @@ def latch_table(d: LatchDesign) -> Table:
                   escape(f"{p.ticks} ticks ({p.governed_by}); {p.switches}; {worst} "
                          f"{p.worst_time_s * 1e3:.4g} ms ({p.worst_corner}); the shortest pulse carries "
                          f"{p.end_current_a:.4g} A there"))
+        if p.table is not None:
+            tb, rate = p.table, r.tick_rate_hz
+            t.add_row("  against the supply", f"{tb.ticks[-1] / rate * 1e3:.4g}..{tb.ticks[0] / rate * 1e3:.4g} ms",
+                      escape(f"{len(tb.ticks)} entries looked up against the supply reading (pull_in.compensate): "
+                             f"{tb.ticks[0]} ticks at {tb.supply_v[0]:.4g} V .. {tb.ticks[-1]} ticks at "
+                             f"{tb.supply_v[-1]:.4g} V, each sized at the lowest bus that reads its code"))
         if p.open_time_s is not None:
             t.add_row("  armature open", f"{p.open_time_s * 1e3:.4g} ms",
                       escape("latest, from the reset pulse's start: the catch trips at "
@@ -42,7 +48,8 @@ def latch_table(d: LatchDesign) -> Table:
                   escape(f"from the supply ({p.energy_corner}): copper {p.copper_j * 1e3:.4g} mJ, switches + "
                          f"sense {p.switch_sense_j * 1e3:.4g} mJ, freewheel path {p.freewheel_j * 1e3:.4g} mJ, "
                          f"back to the bus {p.returned_j * 1e3:.4g} mJ"
-                         + (f", the armature {p.armature_j * 1e3:.4g} mJ" if p.armature_j else "")))
+                         + (f", the armature {p.armature_j * 1e3:.4g} mJ" if p.armature_j else "")
+                         + f"; in the field at its end {p.stored_j * 1e3:.4g} mJ"))
         t.add_row(f"  after the {p.name} pulse", f"{p.decay_time_s * 1e3:.4g} ms",
                   escape(f"to zero current; switches up to {p.peak_switch_voltage_v:.4g} V "
                          f"({p.switch_voltage_corner})"

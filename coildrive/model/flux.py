@@ -426,6 +426,27 @@ def current(coil: FluxCoil, t, i0, v, r, iterations: int = 80):
     return out.reshape(shape)
 
 
+def rise_integrals(coil: FluxCoil, t, i0, v, r):
+    """``(i(t), int i dt, int i^2 dt)`` of a rise of ``t`` s from ``i0`` A at ``v`` V through
+    ``r`` ohm, well conditioned however close ``i(t)`` comes to ``v/r``.
+
+    :func:`integral` integrates over the current, and near the asymptote ``v/r`` the time
+    there hangs on the last digits of ``i(t)``: a pulse many time constants long loses its
+    flat top. With ``t`` known, ``v - r i = dpsi/dt`` gives ``v t - r Q = psi(i1) - psi(i0)``
+    and, times ``i``, ``v Q - r S = W(i1) - W(i0)`` (``W = int i dpsi``, :func:`energy`):
+    exact. Where the resistor takes a small part of ``v`` (``r i1 < v / 2``) those two
+    subtract nearly equal numbers, and the quadrature (no pole near) is kept there.
+    """
+    end = current(coil, t, i0, v, r)
+    t, i0, v, r = (np.asarray(x, float) for x in (t, i0, v, r))
+    q_quad, s_quad = integral(coil, i0, end, v, r, (1, 2))
+    with np.errstate(invalid="ignore"):
+        q_id = (v * t - (linkage(coil, end) - linkage(coil, i0))) / r
+        s_id = (v * q_id - (energy(coil, end) - energy(coil, i0))) / r
+    flat = r * end >= 0.5 * v
+    return end, np.where(flat, q_id, q_quad), np.where(flat, s_id, s_quad)
+
+
 def linear_orbit(t_on, t_off, v_on, r_on, r_off, v_off, inductance):
     """The linear coil's continuous-conduction fixed point of the two exponentials
     (:mod:`coildrive.model.pwm`; here as the start of the saturating coil's orbit):

@@ -2,8 +2,10 @@
 
 The set pulse switches on at t = 0 for ``set_time`` s and its current decays to zero
 through the release path; the reset pulse starts ``interval`` s after the set pulse and
-does the same (closed-form segments of :mod:`coildrive.model.rl`; on a drooping bus the
-rise of :mod:`coildrive.model.supply`, from a full capacitor). With a moving armature
+does the same (closed-form segments of :mod:`coildrive.model.rl`, a flux-linkage curve's
+by :mod:`coildrive.model.flux`'s exact quadrature; on a drooping bus the rise of
+:mod:`coildrive.model.supply`, a curve's of :mod:`coildrive.model.flux_bus`, from a full
+capacitor). With a moving armature
 the set pulse follows it onto the seat (:mod:`coildrive.model.armature_sim`), and its
 decay is the seated coil's: the catch holds the armature. Between the pulses one
 sample marks the idle coil.
@@ -28,8 +30,10 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..config import Drive
+from . import flux_bus
 from . import supply as bus_model
 from .circuit import full_bridge, loop
+from .flux import FluxCoil
 from .rl import decay_current, decay_time, rise_current
 from .topology import coil_voltage
 
@@ -70,7 +74,8 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
     moving armature its gap (m; 0 through the decay: the catch holds it), else ``None``."""
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
     rel = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
-    v, r_on, ind = float(lp.v_on), float(lp.r_on), float(lp.inductance)
+    v, r_on = float(lp.v_on), float(lp.r_on)
+    ind = lp.inductance if isinstance(lp.inductance, FluxCoil) else float(lp.inductance)
     t_on = np.linspace(0.0, t_pulse, points + 1)
     gap_on = None
     if drive.armature is not None:   # the set pulse moves the armature; config: no droop then
@@ -78,7 +83,10 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
         bus = np.full(t_on.shape, v)
     elif drive.supply.droops:
         s = drive.supply
-        i_on, bus = bus_model.state(t_on, bus_model.bus(v, s.source_resistance, s.capacitance, r_on, ind))
+        if isinstance(ind, FluxCoil):   # a curve's drooping bus (model.flux_bus)
+            i_on, bus = flux_bus.state(t_on, flux_bus.bus(v, s.source_resistance, s.capacitance, r_on, ind))
+        else:
+            i_on, bus = bus_model.state(t_on, bus_model.bus(v, s.source_resistance, s.capacitance, r_on, ind))
     else:
         i_on, bus = rise_current(t_on, 0.0, v, r_on, ind), np.full(t_on.shape, v)
     i_top = float(i_on[-1])

@@ -8,7 +8,8 @@
  * and the worst cycle count of the tick handler (AVR: Timer1 at clk/1; elsewhere 0):
  *   c tick <cycles>
  * The scenario (scenario.h, written by the test) is a list of {op, argument} pairs: set,
- * reset and stop call the driver's commands, run <n> runs n ticks (tick numbers from 0).
+ * reset and stop call the driver's commands, run <n> runs n ticks (tick numbers from 0),
+ * supply <code> gives a supply-compensated driver its reading.
  */
 #include <stdint.h>
 #include "coil_driver.h"
@@ -20,6 +21,7 @@
 #define OP_RESET 2u
 #define OP_STOP 3u
 #define OP_RUN 4u
+#define OP_SUPPLY 5u
 
 static uint32_t now_tick;
 
@@ -48,6 +50,10 @@ int main(void)
             coil_reset();
         } else if (op == OP_STOP) {
             coil_stop();
+        } else if (op == OP_SUPPLY) {
+#ifdef COIL_PULSE_COMPENSATED
+            coil_supply((uint16_t)arg);   /* the supply-sense reading (a 12-bit ADC's code) */
+#endif
         } else {
             for (n = 0u; n < arg; n++) {
                 t0 = NOW();
