@@ -1435,9 +1435,9 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     blocking). Any hold (the droop is the peak's; a regulated hold takes it out of
     the hold) and any freewheel path (a clamp's release, which draws from the bus, is
     computed on the undrooped bus: the safe side). A moving armature: a linear coil or its
-    open and seated curves, one switch, a voltage-mode hold, fixed, supply-table or
-    closed-loop (the pull-in run carries the capacitor,
-    :mod:`coildrive.model.armature_runs`; the loop regulates the hold on the stiff bus). Anything else is refused in one line rather
+    open and seated curves, one switch, a voltage-mode (fixed, supply-table or closed-loop)
+    or current-mode hold (the pull-in run carries the capacitor,
+    :mod:`coildrive.model.armature_runs`; the hold is regulated on the stiff bus). Anything else is refused in one line rather
     than designed on a stiff bus."""
     if not supply.droops:
         return
@@ -1453,14 +1453,13 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
         key, why = "hold.regulation", "a full bridge with a closed-loop hold"
     elif armature is not None and switch.topology == "full_bridge":
         key, why = "armature", "a moving armature on a full bridge"
-    elif armature is not None and hold.mode != "voltage":
-        key, why = _open_loop_refusal(hold, None)
-        why += " and a moving armature"
+    elif armature is not None and hold.mode == "latch":
+        key, why = "hold.mode", "a latching coil with a moving armature"
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
                          f"{why}: expected source_resistance left out, or a coil with a curve or an "
                          "eddy term (not both; a full bridge: a voltage-mode, slow-decay, open-loop hold, "
-                         "no [armature]; an [armature]: one switch and a voltage-mode hold)")
+                         "no [armature]; an [armature]: one switch)")
 
 
 def _read_boost(s: "_Section") -> tuple:

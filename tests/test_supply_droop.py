@@ -277,6 +277,36 @@ def test_regulated_hold_droop_against_ngspice(tmp_path, hold):
             assert abs(d.supply.lowest_bus_v - got["vlow"]) <= 1e-3, got
 
 
+def test_current_mode_droop_is_the_cold_coils(tmp_path):
+    """A current-mode hold's corners carry the coil at the hold's settled (hot) temperature,
+    but a coil switched on cold draws the most current: the lowest bus reported is the
+    cold coil's (labelled so) and equals ngspice's transient at that corner, the loop
+    written afresh (copper R(T) by IEC 60028, alpha = 0.00393 /K, + switch + sense), 1 mV;
+    the hot coil's at the same corner droops less."""
+    from coildrive.config import load_drive
+    from coildrive.design import design
+
+    text = Path(_drive(tmp_path, "0.5 ohm")).read_text().replace("[hold]", "[hold]\n" + REGULATED["current"], 1)
+    p = tmp_path / "current.toml"
+    p.write_text(text)
+    d = design(load_drive(p))
+    sup, drv = d.supply, d.drive
+    m = re.match(r"([\d.]+) V, (-?[\d.]+) degC, coil (-?[\d.]+) degC \(cold\), R([-+][\d.]+)%, L([-+][\d.]+)%",
+                 sup.lowest_bus_corner)
+    assert m, sup.lowest_bus_corner
+    v, amb, coil, r_pct, l_pct = (float(x) for x in m.groups())
+    assert coil == amb
+    c, b = drv.coil, drv.board
+    r_on = c.resistance * (1 + 0.00393 * (coil - c.reference_temp)) * (1 + r_pct / 100) \
+        + b.switch.on_resistance + b.sense.resistance
+    got = spice_droop(tmp_path, "cold", v, 0.5, 470e-6, r_on, c.inductance * (1 + l_pct / 100),
+                      drv.pull_in.current, sup.lowest_bus_time_s)
+    # ngspice transient: 1 mV on the bus
+    assert abs(sup.lowest_bus_v - got["vlow"]) <= 1e-3, (sup.lowest_bus_v, got)
+    hot = next(x for x in d.corners if x.label == re.sub(r", coil [^,]* \(cold\)", "", sup.lowest_bus_corner))
+    assert hot.coil_temp_c > coil + 1.0, "the corner's own coil is the hold's settled one"
+
+
 def test_clamp_release_on_the_drooping_bus_against_ngspice(tmp_path):
     # A clamp across the switch: after the turn-off the coil keeps drawing from the bus
     # through the clamp (the coil sees V_bus - V_clamp). The bus never rises above the

@@ -302,8 +302,8 @@ def choose_thresholds(drive: Drive, grid: CornerGrid, peak_time: float = 0.0) ->
 
 
 def evaluate_current(drive: Drive, th: Thresholds, supply, ambient, r_factor, l_factor,
-                     peak_time, heat_peak: float | None = None, mechanics: bool = True
-                     ) -> tuple[PointResults, CurrentModeSteadyState]:
+                     peak_time, heat_peak: float | None = None, mechanics: bool = True,
+                     coil_temp=None) -> tuple[PointResults, CurrentModeSteadyState]:
     """Every design figure at the points with the current-mode hold ``th`` (the
     counterpart of :func:`coildrive.design.evaluate.evaluate`; the release starts from the
     top of the ripple) after a peak of ``peak_time`` s; ``heat_peak`` (s, default
@@ -311,12 +311,18 @@ def evaluate_current(drive: Drive, th: Thresholds, supply, ambient, r_factor, l_
     the slow path and the release the fast one, as in voltage mode. With an ``[armature]``
     (``mechanics``: run its model) the pull-in is the seat, the peak's end current the
     moving armature's, the release the time until it is back open (as
-    :func:`coildrive.design.evaluate.evaluate`)."""
+    :func:`coildrive.design.evaluate.evaluate`). ``coil_temp`` (degC at each point): the
+    coil at that temperature instead of the hold's settled one (a cold start)."""
     supply, ambient, r_factor, l_factor = np.broadcast_arrays(
         *(np.asarray(x, float) for x in (supply, ambient, r_factor, l_factor)))
     lower = th.lower_a if th.control == "hysteretic" else 0.0
-    temp, lp, cm = settle(drive, supply, ambient, r_factor, l_factor, lower, th.upper_a,
-                          th.off_time_s, th.delay_s, peak_time if heat_peak is None else heat_peak)
+    if coil_temp is None:
+        temp, lp, cm = settle(drive, supply, ambient, r_factor, l_factor, lower, th.upper_a,
+                              th.off_time_s, th.delay_s, peak_time if heat_peak is None else heat_peak)
+    else:
+        temp = np.broadcast_to(np.asarray(coil_temp, float), supply.shape)
+        lp = loop(drive, supply, temp, r_factor, l_factor)
+        cm = steady_state(drive, lp, lower, th.upper_a, th.off_time_s, th.delay_s)
     ss = cm.as_pwm()
     # the peak on the drooping bus where [supply] source_resistance is given (the hold's
     # regulation takes the bus's droop out of the hold)
@@ -474,6 +480,12 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                            heat_peak, offs, hold.freewheel_power_w, hold.freewheel_elements_w)
     checks += thermal_checks(drive, pull_in.peak_time_s, thermal)
     sup = drooping_bus(drive, grid, res, pk.long_time, cm.duty, thresholds)
+    if sup is not None:
+        # the corners' coil is the hold's settled one; a cold start draws the most current
+        cold, cold_cm = evaluate_current(drive, th, grid.supply, grid.ambient, grid.r_factor,
+                                         grid.l_factor, peak_time, heat_peak, coil_temp=grid.ambient)
+        sup = lower_bus(sup, drooping_bus(drive, ColdGrid(grid), cold, pk.long_time, cold_cm.duty,
+                                          thresholds))
     checks += supply_checks(sup)
     boost, boost_rows, boost_notes = boost_outputs(drive, grid, res, board.tick.rate)
     checks += boost_rows
@@ -507,6 +519,33 @@ def drooping_bus(drive: Drive, grid, res: PointResults, peak_time, duty, thresho
     def read(volts):
         return adc_code(volts / sense.divider, b.adc.reference, b.adc.bits)
     return supply_result(drive, grid, res, peak_time, duty, read, thresholds.supply_min_code)
+
+
+@dataclasses.dataclass(frozen=True)
+class ColdGrid:
+    """A :class:`~coildrive.design.corners.CornerGrid`'s points with the coil at the
+    ambient (a cold start), labelled so."""
+
+    grid: CornerGrid
+
+    def label(self, k: int) -> str:
+        g = self.grid
+        head = f"{g.supply[k]:g} V, {g.ambient[k]:g} degC, "
+        return head + f"coil {g.ambient[k]:.4g} degC (cold), " + g.label(k)[len(head):]
+
+
+def lower_bus(sup, other):
+    """``sup`` (a :class:`~coildrive.design.result.SupplyResult`) with the lowest bus and
+    the capacitor's energy taken from ``other`` (the same supply at other points) where
+    those are worse."""
+    if other.lowest_bus_v < sup.lowest_bus_v:
+        sup = dataclasses.replace(sup, lowest_bus_v=other.lowest_bus_v, lowest_bus_corner=other.lowest_bus_corner,
+                                  lowest_bus_time_s=other.lowest_bus_time_s, droop_v=other.droop_v,
+                                  lowest_bus_code=other.lowest_bus_code)
+    if other.capacitor_energy_j > sup.capacitor_energy_j:
+        sup = dataclasses.replace(sup, capacitor_energy_j=other.capacitor_energy_j,
+                                  capacitor_energy_corner=other.capacitor_energy_corner)
+    return sup
 
 
 def _spread(drive: Drive, grid: CornerGrid, res: PointResults) -> dict:
