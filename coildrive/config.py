@@ -1411,20 +1411,6 @@ def resolve_board(spec: str, relative_to: Path | None = None) -> Path:
                      "and no such file")
 
 
-def _open_loop_refusal(hold: Hold, armature: Armature | None) -> tuple[str, str] | None:
-    """``(key, what)`` when the hold is not a voltage-mode open-loop one on a still armature
-    (what the drooping bus and the boosted peak are modelled with), else ``None``."""
-    if hold.mode == "current":
-        return "hold.mode", "a current-mode hold"
-    if hold.mode == "latch":
-        return "hold.mode", "a latching coil"
-    if hold.regulation == "closed_loop":
-        return "hold.regulation", "a closed-loop hold"
-    if armature is not None:
-        return "armature", "a moving armature"
-    return None
-
-
 def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
                  armature: Armature | None, hold: Hold) -> None:
     """What the drooping bus (``supply.source_resistance``) is modelled with: a linear coil
