@@ -85,9 +85,8 @@ def rise_integrals(t, i0, v, r, l):
     """``(int i dt, int i^2 dt)`` over a switch-on segment of length ``t``."""
     if isinstance(l, EddyCoil):
         return eddy.rise_integrals(t, i0, v, r, l)[:2]
-    if isinstance(l, FluxCoil):
-        end = flux.current(l, t, i0, v, r)
-        return flux.integral(l, i0, end, v, r, 1), flux.integral(l, i0, end, v, r, 2)
+    if isinstance(l, FluxCoil):   # (well conditioned up against v/r: a long pulse's flat top)
+        return flux.rise_integrals(l, t, i0, v, r)[1:]
     a = np.asarray(v, float) / r
     return segment_integrals(a, i0 - a, np.asarray(l, float) / r, t)
 
