@@ -1416,22 +1416,22 @@ def _open_loop_refusal(hold: Hold, armature: Armature | None) -> tuple[str, str]
 def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
                  armature: Armature | None, hold: Hold) -> None:
     """What the drooping bus (``supply.source_resistance``) is modelled with: a linear coil
-    (or an eddy-current term, or a flux-linkage curve, not both), one switch (low or high
-    side) or a full bridge (a voltage-mode, slow-decay, open-loop hold; its fast decay
-    into the bus is :mod:`coildrive.model.bus_decay`, with a curve
-    :mod:`coildrive.model.flux_bus_decay`, on a supply that cannot sink with the feed
-    blocking). Any hold (the droop is the peak's; a regulated hold takes it out of
+    or a flux-linkage curve, either with an eddy-current term (a curve with one:
+    :func:`coildrive.model.flux_bus.bus`), one switch (low or high side) or a full bridge
+    (a voltage-mode, slow-decay, open-loop hold, no eddy term; its fast decay into the bus
+    is :mod:`coildrive.model.bus_decay`, with a curve :mod:`coildrive.model.flux_bus_decay`,
+    on a supply that cannot sink with the feed blocking). Any hold (the droop is the peak's; a regulated hold takes it out of
     the hold) and any freewheel path (a clamp's release, which draws from the bus, is
     computed on the undrooped bus: the safe side). A moving armature: a linear coil or its
     open and seated curves, one switch, a voltage-mode open-loop hold (the pull-in run
-    carries the capacitor, :mod:`coildrive.model.armature_runs`). Anything else is refused in one line rather
-    than designed on a stiff bus."""
+    carries the capacitor, :mod:`coildrive.model.armature_runs`; a curve or an eddy term,
+    not both). Anything else is refused in one line rather than designed on a stiff bus."""
     if not supply.droops:
         return
     why = None
-    if coil.flux_current and coil.eddy_resistance:
+    if switch.topology == "full_bridge" and coil.eddy_resistance:
         key = "coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance"
-        why = "a flux-linkage curve and an eddy-current term together"
+        why = "an eddy-current term on a full bridge (its fast decay into the bus)"
     elif switch.topology == "full_bridge" and hold.fast_fraction > 0:
         key, why = "hold.fast_fraction", "a full bridge's mixed-decay hold"
     elif switch.topology == "full_bridge" and hold.mode != "voltage":
@@ -1440,14 +1440,17 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
         key, why = "hold.regulation", "a full bridge with a closed-loop hold"
     elif armature is not None and switch.topology == "full_bridge":
         key, why = "armature", "a moving armature on a full bridge"
+    elif armature is not None and coil.flux_current and coil.eddy_resistance:
+        key, why = "armature", "a moving armature over a flux-linkage curve with an eddy-current term"
     elif armature is not None and _open_loop_refusal(hold, None):
         key, why = _open_loop_refusal(hold, None)
         why += " and a moving armature"
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
-                         f"{why}: expected source_resistance left out, or a coil with a curve or an "
-                         "eddy term (not both; a full bridge: a voltage-mode, slow-decay, open-loop hold, "
-                         "no [armature]; an [armature]: one switch and a voltage-mode open-loop hold)")
+                         f"{why}: expected source_resistance left out, or one switch (a full bridge: "
+                         "no eddy term, a voltage-mode, slow-decay, open-loop hold, no [armature]; an "
+                         "[armature]: one switch, a voltage-mode open-loop hold, a curve or an eddy "
+                         "term, not both)")
 
 
 def _read_boost(s: "_Section") -> tuple:
