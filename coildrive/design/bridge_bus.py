@@ -2,7 +2,8 @@
 coil's current back into the bus behind the source resistance and the bulk capacitor, so
 the bus rises above the source while the release starts from a bus that may sit below it
 (:mod:`coildrive.model.bus_decay`, closed form; a supply that cannot sink blocks at the
-source's voltage and the rest charges the capacitor alone)."""
+source's voltage and the rest charges the capacitor alone; a flux-linkage curve's, with or
+without an eddy term, :mod:`coildrive.model.flux_bus_decay`, stepped)."""
 
 from __future__ import annotations
 
@@ -14,6 +15,7 @@ import numpy as np
 from ..config import Drive
 from ..model import bus_decay, flux_bus_decay
 from ..model.circuit import full_bridge
+from ..model.eddy import EddyCoil
 from ..model.flux import FluxCoil
 from ..model.supply import bus_floor
 from .figures import worst
@@ -53,15 +55,19 @@ def decays(drive: Drive, res, i0, peak_time, peak_end) -> list[bus_decay.FastDec
     """The fast decay of ``i0`` A at the points of ``res`` from each of
     :data:`BRIDGE_STARTS` starting buses over :func:`bus_range` (a supply that cannot
     sink: :func:`coildrive.model.bus_decay.decay_no_sink`; a flux-linkage curve:
-    :mod:`coildrive.model.flux_bus_decay`, stepped)."""
+    :mod:`coildrive.model.flux_bus_decay`, stepped; with an eddy term too, a supply that
+    sinks, the currents the magnetising ones)."""
     s = drive.supply
     lp = release_loop(res)
     lo, hi = bus_range(drive, res, peak_time, peak_end)
     starts = [lo + (hi - lo) * k / (BRIDGE_STARTS - 1) for k in range(BRIDGE_STARTS)]
-    if isinstance(lp.inductance, FluxCoil):   # stepped: every start in one run
+    coil, eddy = lp.inductance, {}
+    if isinstance(coil, EddyCoil):       # (config: a curve's, on a supply that sinks)
+        coil, eddy = coil.magnetising, {"r_e": coil.resistance}
+    if isinstance(coil, FluxCoil):   # stepped: every start in one run
         fast = flux_bus_decay.decay if s.sink else flux_bus_decay.decay_no_sink
         d = fast(i0, np.stack(np.broadcast_arrays(*starts)), drive.release.current, lp.v_on, s.source_resistance,
-                 s.capacitance, lp.r_off, lp.inductance, lp.diode(drive))
+                 s.capacitance, lp.r_off, coil, lp.diode(drive), **eddy)
         return [bus_decay.FastDecay(*(getattr(d, f.name)[k] for f in dataclasses.fields(d)))
                 for k in range(BRIDGE_STARTS)]
     fast = bus_decay.decay if s.sink else bus_decay.decay_no_sink

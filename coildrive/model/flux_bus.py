@@ -196,17 +196,27 @@ def bus(v_s, r_s, c, r, coil: FluxCoil, r_e=None) -> FluxBus:
     hit = _CACHE.get(key)
     if hit is not None and hit.coil.curve is coil.curve:
         return hit
-    if r_e is None:
-        fb = FluxBus(v_s.copy(), r_s.copy(), c.copy(), r.copy(), coil.with_scale(scale.copy()), v_s / (r + r_s))
-    else:
-        k = 1.0 / (1.0 + r * g_e)           # R_e/(R + R_e)
-        a = 1.0 + k * g_e * r_s
-        fb = FluxBus(v_s / a, k * r_s / a, c / k, r.copy(), coil.with_scale(scale / k), v_s / (r + r_s),
-                     g_e=g_e.copy(), v0=v_s.copy())
+    fb = equivalent(v_s, r_s, c, r, coil.with_scale(scale.copy()),
+                    None if r_e is None else np.broadcast_to(np.asarray(r_e, float), v_s.shape))
     if len(_CACHE) >= CACHE_SIZE:
         _CACHE.pop(next(iter(_CACHE)))
     _CACHE[key] = fb
     return fb
+
+
+def equivalent(v_s, r_s, c, r, coil: FluxCoil, r_e=None) -> FluxBus:
+    """The circuit of the module docstring (arrays of one shape, ``coil``'s scale too), not
+    cached: with an eddy resistance ``r_e`` ohm its equivalent plain circuit (source
+    ``V_s/a``, ``k R_s/a``, ``C/k``, the curve scaled by ``1/k``), the bus starting at
+    ``v_s``."""
+    v_s, r_s, c, r = (np.array(x, float) for x in (v_s, r_s, c, r))
+    if r_e is None:
+        return FluxBus(v_s, r_s, c, r, coil, v_s / (r + r_s))
+    g_e = 1.0 / np.asarray(r_e, float)
+    k = 1.0 / (1.0 + r * g_e)           # R_e/(R + R_e)
+    a = 1.0 + k * g_e * r_s
+    return FluxBus(v_s / a, k * r_s / a, c / k, r, coil.with_scale(np.asarray(coil.scale, float) / k),
+                   v_s / (r + r_s), g_e=g_e, v0=v_s)
 
 
 def _phases(fb: FluxBus) -> list[tuple[int, np.ndarray]]:
