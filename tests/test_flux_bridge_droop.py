@@ -27,31 +27,37 @@ import pytest
 from conftest import run_cli
 from ngspice_run import run
 
-from coildrive.model import flux_bus, flux_bus_decay
+from coildrive.model import bus_decay, flux, flux_bus, flux_bus_decay
+from coildrive.model import supply as bus_model
 from test_bridge_droop import _drive, droop_netlist
 from test_bridge_eddy import _eddy
 from test_flux_bridge import bridge_curve
-from test_reference_ngspice_bridge import (COILS, EDGE, I_DROP, R_COIL, R_SENSE, R_SW, STAGGER, V_D, V_SUP,
+from test_reference_ngspice_bridge import (COILS, EDGE, I_DROP, L_COIL, R_COIL, R_SENSE, R_SW, STAGGER, V_D, V_SUP,
                                            _coil_netlist, _on_until)
 
 COIL = COILS["curve"]
 
 
-def against_ngspice(tmp_path, r_s, c, sink, r_e=None):
-    """The curve's peak through two switches on the drooping bus (1.5 x its time to 0.55 A)
+def against_ngspice(tmp_path, r_s, c, sink, r_e=None, coil=COIL):
+    """The coil's peak through two switches on the drooping bus (1.5 x its time to 0.55 A)
     and the fast decay into the bus from the state ngspice has at the turn-off, against
-    ngspice: the element-level bridge with ``RSRC`` and the flux-controlled inductor (with
-    ``r_e`` ohm across it, the magnetising current's ammeter ``VLM`` in series:
+    ngspice: the element-level bridge with ``RSRC`` and the flux-controlled inductor of the
+    curve (``coil`` a number: the linear ``LCOIL`` of that many H; with ``r_e`` ohm across
+    it, the magnetising current's ammeter ``VLM`` in series:
     :func:`test_bridge_eddy._eddy`; the pull-in, the current at turn-off and the drop-out
     are then the magnetising current's, the zero time the terminal current's)."""
     r_on = R_COIL + 2 * R_SW + R_SENSE
     eddy = {} if r_e is None else {"r_e": r_e}
-    b = flux_bus.bus(V_SUP, r_s, c, r_on, COIL, r_e)
-    t_on = 1.5 * float(flux_bus.rise_time(0.55, b))
-    i_on, v_on = (float(x) for x in flux_bus.state(t_on, b))
-    v_low = float(flux_bus.lowest_bus(t_on, b)[0])
-    fast = flux_bus_decay.decay if sink else flux_bus_decay.decay_no_sink
-    d = fast(i_on, v_on, I_DROP, V_SUP, r_s, c, R_COIL + R_SENSE, COIL, V_D, **eddy)
+    if isinstance(coil, flux.FluxCoil):
+        peak = flux_bus
+        fast = flux_bus_decay.decay if sink else flux_bus_decay.decay_no_sink
+    else:   # (the linear coil without an eddy term: tests/test_bridge_droop.py)
+        peak, fast = bus_model, bus_decay.eddy_decay
+    b = peak.bus(V_SUP, r_s, c, r_on, coil, r_e)
+    t_on = 1.5 * float(peak.rise_time(0.55, b))
+    i_on, v_on = (float(x) for x in peak.state(t_on, b))
+    v_low = float(peak.lowest_bus(t_on, b)[0])
+    d = fast(i_on, v_on, I_DROP, V_SUP, r_s, c, R_COIL + R_SENSE, coil, V_D, **eddy)
     t_end = max(float(d.zero_time), float(d.drop_time))
     step = t_end / 4000
     t_off = t_on + EDGE / 2 + STAGGER
@@ -66,10 +72,12 @@ def against_ngspice(tmp_path, r_s, c, sink, r_e=None):
                 f"meas tran tdrop WHEN {im}={I_DROP!r} FALL=1", "meas tran tzero WHEN i(VM)=1e-6 FALL=1",
                 f"meas tran vmax MAX v(bus) from={t_off!r} to={tend!r}"]
     text = droop_netlist("curve-bridge-droop", gates, tend, step, measures, r_s, c, sink)
-    res = run(tmp_path, "curve-bridge-droop", _coil_netlist(text if r_e is None else _eddy(text, r_e), COIL))
+    if not isinstance(coil, flux.FluxCoil):
+        text = text.replace(f"LCOIL n2 b {L_COIL!r}", f"LCOIL n2 b {coil!r}")
+    res = run(tmp_path, "curve-bridge-droop", _coil_netlist(text if r_e is None else _eddy(text, r_e), coil))
     # the release from the state ngspice has at turn-off
-    d = fast(res["ioff"], res["voff"], I_DROP, V_SUP, r_s, c, R_COIL + R_SENSE, COIL, V_D, **eddy)
-    print(f"curve bridge on a drooping bus (sink={sink}, R_e={r_e}) vs ngspice: i_off {i_on:.6e}/{res['ioff']:.6e} A, "
+    d = fast(res["ioff"], res["voff"], I_DROP, V_SUP, r_s, c, R_COIL + R_SENSE, coil, V_D, **eddy)
+    print(f"{'curve' if peak is flux_bus else 'linear'} bridge on a drooping bus (sink={sink}, R_e={r_e}) vs ngspice: i_off {i_on:.6e}/{res['ioff']:.6e} A, "
           f"lowest bus {v_low:.6e}/{res['vlow']:.6e} V, drop {float(d.drop_time):.6e}/{res['tdrop'] - t_off:.6e} s, "
           f"zero {float(d.zero_time):.6e}/{res['tzero'] - t_off:.6e} s, highest bus {float(d.bus_top):.6e}/"
           f"{res['vmax']:.6e} V")

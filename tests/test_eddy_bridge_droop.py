@@ -1,21 +1,24 @@
-"""A saturating coil (a flux-linkage curve) with an eddy-current term on a full bridge on the
-drooping bus (``[supply] source_resistance``, ``sink = true``) against the outside world.
+"""An eddy-current term on a full bridge on the drooping bus (``[coil] eddy_resistance``,
+``[supply] source_resistance``, ``sink = true``), over a linear coil or a flux-linkage curve,
+against the outside world.
 
-The peak through two switches is coildrive/model/flux_bus.py's run with the eddy term; each
-fast decay into the bus behind ``R_s`` and ``C`` is coildrive/model/flux_bus_decay.py's (the
-same stepping on the equivalent circuit), the body diodes blocking where the terminal
-current reaches zero and the flux then dying through ``R_e`` alone. References:
+The peak through two switches is coildrive/model/supply.py's closed form (a curve:
+coildrive/model/flux_bus.py's run) with the eddy term; each fast decay into the bus behind
+``R_s`` and ``C`` is coildrive/model/bus_decay.py's ``eddy_decay`` (closed form; a curve:
+coildrive/model/flux_bus_decay.py, the same stepping on the equivalent circuit), the body
+diodes blocking where the terminal current reaches zero and the flux then dying through
+``R_e`` alone. References:
 
 * ngspice (batch mode): the element-level bridge of tests/test_reference_ngspice_bridge.py
-  with the feed resistor ``RSRC``, the flux-controlled inductor and the eddy resistor
-  across it (:func:`test_flux_bridge_droop.against_ngspice`): the magnetising current at
-  turn-off, the lowest bus in the peak, the magnetising current's drop-out (in the flux's
-  tail through ``R_e``, below the block current), the terminal current's zero and the
-  highest bus;
+  with the feed resistor ``RSRC``, its inductor (or the flux-controlled one) and the eddy
+  resistor across it (:func:`test_flux_bridge_droop.against_ngspice`): the magnetising
+  current at turn-off, the lowest bus in the peak, the magnetising current's drop-out (in
+  the flux's tail through ``R_e``, below the block current), the terminal current's zero
+  and the highest bus;
 * scipy's ``solve_ivp`` (Radau, rtol 1e-11) of Kirchhoff's laws written afresh here (the
   terminal current solved from the loop through the body diodes at every step), a
   terminal event at its zero, then the flux through ``R_e`` alone to the drop-out;
-* the limit ``R_e -> inf`` (hand-worked: no eddy current), the curve's own fast decay.
+* the limit ``R_e -> inf`` (hand-worked: no eddy current), the coil's own fast decay.
 """
 
 from __future__ import annotations
@@ -29,27 +32,32 @@ from conftest import run_cli
 from test_bridge_droop import _drive
 from test_flux_bridge_droop import COIL, against_ngspice
 from test_flux_droop import CURVE_I, CURVE_PSI
-from test_reference_ngspice_bridge import I_DROP, R_COIL, R_SENSE, V_D, V_SUP
+from test_reference_ngspice_bridge import I_DROP, L_COIL, R_COIL, R_SENSE, V_D, V_SUP
 
-from coildrive.model import flux_bus_decay
+from coildrive.model import bus_decay, flux, flux_bus_decay
 
 #: ohm: the block current (v + 2 V_d)/R_e is about 0.26 A, above the drop-out current
 #: (0.1 A): the drop-out comes in the flux's tail through R_e.
 R_E = 100.0
 
 
+#: The two coils: the reference bridge's linear 69 mH and its curve.
+COILS = {"linear": L_COIL, "curve": COIL}
+
+
 @pytest.mark.ngspice
-def test_peak_and_release_match_ngspice(tmp_path):
-    d = against_ngspice(tmp_path, 1.5, 100e-6, True, R_E)
+@pytest.mark.parametrize("kind", COILS)
+def test_peak_and_release_match_ngspice(tmp_path, kind):
+    d = against_ngspice(tmp_path, 1.5, 100e-6, True, R_E, COILS[kind])
     assert float(d.drop_time) > float(d.zero_time), "precondition: the drop-out in the flux's tail"
 
 
-def _reference(i0, v0, i_drop, r_s, c, r, r_e):
+def _reference(coil, i0, v0, i_drop, r_s, c, r, r_e):
     """scipy's solve_ivp: ``(zero s, drop-out s, highest bus V, bus at zero V, charge C)``."""
     from scipy.integrate import solve_ivp
 
     def ld(i):
-        return float(COIL.curve.incremental(max(i, 0.0)))
+        return float(coil.curve.incremental(max(i, 0.0))) if isinstance(coil, flux.FluxCoil) else coil
 
     def terminal(x):   # the loop through the diodes: -(v + 2 V_d) = R i + R_e (i - i_m)
         return (r_e * x[0] - x[1] - 2 * V_D) / (r + r_e)
@@ -82,16 +90,18 @@ def _reference(i0, v0, i_drop, r_s, c, r, r_e):
     return t_zero, t_drop, v_top, v_z, q
 
 
-def test_fast_decay_against_solve_ivp():
-    r = R_COIL + R_SENSE
+@pytest.mark.parametrize("kind", COILS)
+def test_fast_decay_against_solve_ivp(kind):
+    r, coil = R_COIL + R_SENSE, COILS[kind]
     # (i0 A, v0 V, R_s ohm, C F, R_e ohm): a cable and a small capacitor (the drop-out while
     # the diodes conduct); a battery lead and a large one, the drop-out in the tail; a stiff
     # source (R_s C = 2.35 us, far below the decay's ms)
     cases = [(0.9, 23.0, 1.5, 100e-6, 300.0), (0.9, 24.0, 0.5, 4.7e-3, R_E), (0.6, 23.9, 0.005, 470e-6, 150.0)]
     i0, v0, r_s, c, r_e = (np.array(x) for x in zip(*cases))
-    d = flux_bus_decay.decay(i0, v0, I_DROP, V_SUP, r_s, c, r, COIL, V_D, r_e)     # every case in one run
+    fast = flux_bus_decay.decay if kind == "curve" else bus_decay.eddy_decay
+    d = fast(i0, v0, I_DROP, V_SUP, r_s, c, r, coil, V_D, r_e)     # every case at once
     for k, case in enumerate(cases):
-        ref = _reference(*case[:2], I_DROP, *case[2:4], r, case[4])
+        ref = _reference(coil, *case[:2], I_DROP, *case[2:4], r, case[4])
         got = [float(x[k]) for x in (d.zero_time, d.drop_time, d.bus_max, d.bus_at_zero, d.charge)]
         print(f"case {k}: " + ", ".join(f"{g / e - 1:+.1e}" for g, e in zip(got, ref)) + " (vs solve_ivp)")
         # scipy solve_ivp (Radau, rtol 1e-11): the times, the buses and the charge to 1e-5
@@ -102,25 +112,29 @@ def test_fast_decay_against_solve_ivp():
 def test_blocked_at_once_and_without_eddy_limit():
     # a turn-off whose step takes the terminal current to zero (R_e i_m <= v + 2 V_d): no
     # conduction, no charge, the bus untouched; the flux's tail alone (hand-worked: the
-    # curve's quadrature of dpsi/dt = -R_e i_m, coildrive/model/flux.py)
-    from coildrive.model import flux
+    # curve's quadrature of dpsi/dt = -R_e i_m, coildrive/model/flux.py; a line's L/R_e ln)
+    args = (0.2, 23.0, I_DROP, V_SUP, 1.5, 100e-6, R_COIL + R_SENSE)
+    tails = {"curve": float(flux.time(COIL, 0.2, I_DROP, 0.0, 100.0)), "linear": L_COIL / 100.0 * np.log(2.0)}
+    for kind, fast in (("curve", flux_bus_decay.decay), ("linear", bus_decay.eddy_decay)):
+        d = fast(*args, COILS[kind], V_D, 100.0)
+        assert float(d.zero_time) == 0.0 and abs(float(d.charge)) < 1e-15 and float(d.bus_at_zero) == 23.0
+        assert float(d.drop_time) == pytest.approx(tails[kind], rel=1e-12), kind
+    # R_e -> inf: the coil's own fast decay into the bus (hand-worked: no eddy current)
+    args = (0.9, 23.0, I_DROP, V_SUP, 1.5, 100e-6, R_COIL + R_SENSE)
+    for plain, far in ((flux_bus_decay.decay(*args, COIL, V_D), flux_bus_decay.decay(*args, COIL, V_D, 1e12)),
+                       (bus_decay.decay(*args, L_COIL, V_D), bus_decay.eddy_decay(*args, L_COIL, V_D, 1e12))):
+        for name in ("drop_time", "zero_time", "bus_top", "charge"):
+            assert float(getattr(far, name)) == pytest.approx(float(getattr(plain, name)), rel=1e-6), name
 
-    d = flux_bus_decay.decay(0.2, 23.0, I_DROP, V_SUP, 1.5, 100e-6, R_COIL + R_SENSE, COIL, V_D, 100.0)
-    assert float(d.zero_time) == 0.0 and float(d.charge) == 0.0 and float(d.bus_at_zero) == 23.0
-    assert float(d.drop_time) == pytest.approx(float(flux.time(COIL, 0.2, I_DROP, 0.0, 100.0)), rel=1e-12)
-    # R_e -> inf: the curve's own fast decay into the bus (hand-worked: no eddy current)
-    args = (0.9, 23.0, I_DROP, V_SUP, 1.5, 100e-6, R_COIL + R_SENSE, COIL, V_D)
-    plain, far = flux_bus_decay.decay(*args), flux_bus_decay.decay(*args, 1e12)
-    for name in ("drop_time", "zero_time", "bus_top", "charge"):
-        assert float(getattr(far, name)) == pytest.approx(float(getattr(plain, name)), rel=1e-6), name
 
-
-def test_design_end_to_end(tmp_path):
-    """The invented bridge example with the curve and a 200 ohm eddy term behind 2 ohm designs
-    (was refused): the release takes the bus above the source, the switches see it."""
+@pytest.mark.parametrize("kind", COILS)
+def test_design_end_to_end(tmp_path, kind):
+    """The invented bridge example (its 70 mH, or the curve) with a 200 ohm eddy term behind
+    2 ohm designs (was refused; the linear one failed with a traceback): the release takes
+    the bus above the source, the switches see it."""
     p = _drive(tmp_path)
-    coil = (f"flux_current = {list(CURVE_I)}\nflux_linkage = "
-            f"{[f'{1e3 * x:g} mWb' for x in CURVE_PSI]}\n").replace("'", '"')
+    coil = 'inductance = "70 mH"\n' if kind == "linear" else (
+        f"flux_current = {list(CURVE_I)}\nflux_linkage = {[f'{1e3 * x:g} mWb' for x in CURVE_PSI]}\n").replace("'", '"')
     p.write_text(p.read_text().replace('inductance = "70 mH"\n', coil + 'eddy_resistance = "200 ohm"\n'))
     r = run_cli("design", str(p), "--json")
     assert r.returncode in (0, 1), r.stderr
