@@ -1420,9 +1420,8 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     :func:`coildrive.model.flux_bus.bus`), one switch (low or high side) or a full bridge
     (a voltage-mode, slow-decay, open-loop hold; its fast decay into the bus is
     :mod:`coildrive.model.bus_decay`, with a curve :mod:`coildrive.model.flux_bus_decay`,
-    on a supply that cannot sink with the feed blocking; an eddy term, linear or with a
-    curve, only on a supply that sinks). Any hold (the droop is the peak's; a regulated hold takes it out of
-    the hold) and any freewheel path (a clamp's release, which draws from the bus, is
+    on a supply that cannot sink with the feed blocking, with an eddy term too). Any hold
+    (the droop is the peak's; a regulated hold takes it out of the hold) and any freewheel path (a clamp's release, which draws from the bus, is
     computed on the undrooped bus: the safe side). A moving armature: a linear coil or its
     open and seated curves, one switch, a voltage-mode open-loop hold (the pull-in run
     carries the capacitor, :mod:`coildrive.model.armature_runs`; a curve or an eddy term,
@@ -1430,10 +1429,7 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     if not supply.droops:
         return
     why = None
-    if switch.topology == "full_bridge" and coil.eddy_resistance and not supply.sink:
-        key = "coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance"
-        why = "an eddy-current term on a full bridge whose supply cannot sink (its fast decay into the bus)"
-    elif switch.topology == "full_bridge" and hold.fast_fraction > 0:
+    if switch.topology == "full_bridge" and hold.fast_fraction > 0:
         key, why = "hold.fast_fraction", "a full bridge's mixed-decay hold"
     elif switch.topology == "full_bridge" and hold.mode != "voltage":
         key, why = "hold.mode", f"a full bridge with hold.mode = {hold.mode!r}"
@@ -1449,8 +1445,7 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
                          f"{why}: expected source_resistance left out, or one switch (a full bridge: "
-                         "an eddy term only with sink = true, a voltage-mode, slow-decay, "
-                         "open-loop hold, no [armature]; an "
+                         "a voltage-mode, slow-decay, open-loop hold, no [armature]; an "
                          "[armature]: one switch, a voltage-mode open-loop hold, a curve or an eddy "
                          "term, not both)")
 

@@ -161,8 +161,7 @@ def test_design_simulate_and_check_end_to_end(tmp_path):
 
 def test_armature_over_the_curves_stays_refused(tmp_path):
     """One line naming the key, exit 2: a moving armature over curves with an eddy term on
-    the drooping bus (an eddy term on a bridge whose supply cannot sink:
-    tests/test_flux_bridge_droop.py)."""
+    the drooping bus."""
     from test_armature_curves import curve_drive
     p = curve_drive(tmp_path)
     p.write_text(p.read_text().replace('max = "13.2 V"', 'max = "13.2 V"\nsource_resistance = "2 ohm"\n'

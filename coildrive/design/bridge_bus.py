@@ -61,15 +61,15 @@ def decays(drive: Drive, res, i0, peak_time, peak_end) -> list[bus_decay.FastDec
     """The fast decay of ``i0`` A at the points of ``res`` from each of
     :data:`BRIDGE_STARTS` starting buses over :func:`bus_range` (a supply that cannot
     sink: :func:`coildrive.model.bus_decay.decay_no_sink`; a flux-linkage curve:
-    :mod:`coildrive.model.flux_bus_decay`, stepped; an eddy term on a supply that sinks:
-    :func:`coildrive.model.bus_decay.eddy_decay`, or with a curve the stepped one, the
-    currents the magnetising ones)."""
+    :mod:`coildrive.model.flux_bus_decay`, stepped; an eddy term:
+    :func:`coildrive.model.bus_decay.eddy_decay` (``eddy_decay_no_sink``), or with a curve
+    the stepped ones, the currents the magnetising ones)."""
     s = drive.supply
     lp = release_loop(res)
     lo, hi = bus_range(drive, res, peak_time, peak_end)
     starts = [lo + (hi - lo) * k / (BRIDGE_STARTS - 1) for k in range(BRIDGE_STARTS)]
     coil, eddy = lp.inductance, {}
-    if isinstance(coil, EddyCoil):       # (config: on a supply that sinks)
+    if isinstance(coil, EddyCoil):
         coil, eddy = coil.magnetising, {"r_e": coil.resistance}
     if isinstance(coil, FluxCoil):   # stepped: every start in one run
         fast = flux_bus_decay.decay if s.sink else flux_bus_decay.decay_no_sink
@@ -77,7 +77,10 @@ def decays(drive: Drive, res, i0, peak_time, peak_end) -> list[bus_decay.FastDec
                  s.capacitance, lp.r_off, coil, lp.diode(drive), **eddy)
         return [bus_decay.FastDecay(*(getattr(d, f.name)[k] for f in dataclasses.fields(d)))
                 for k in range(BRIDGE_STARTS)]
-    fast = bus_decay.eddy_decay if eddy else bus_decay.decay if s.sink else bus_decay.decay_no_sink
+    if eddy:
+        fast = bus_decay.eddy_decay if s.sink else bus_decay.eddy_decay_no_sink
+    else:
+        fast = bus_decay.decay if s.sink else bus_decay.decay_no_sink
     return [fast(i0, v0, drive.release.current, lp.v_on, s.source_resistance,
                  s.capacitance, lp.r_off, coil, lp.diode(drive), *eddy.values()) for v0 in starts]
 

@@ -44,6 +44,10 @@ current charges ``C`` alone: the series RLC circuit of
 i``), exact, the current falling monotonically to zero and the bus rising with it until
 then; the bus stays there (nothing takes it back). See :func:`decay_no_sink`.
 
+With an eddy-current term (:func:`eddy_decay`, :func:`eddy_decay_no_sink`) the circuit is
+:mod:`coildrive.model.supply`'s eddy circuit with the bus mirrored, blocking where the
+terminal current reaches zero, the flux's tail through ``R_e`` after it.
+
 All functions broadcast over numpy arrays; units are A, V, ohm, H, F, s.
 """
 
@@ -165,8 +169,18 @@ def eddy_decay(i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e) -> FastDecay:
 
     i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e = np.broadcast_arrays(
         *(np.asarray(x, float) for x in (i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e)))
-    u0 = -(v0 + 2.0 * v_d)
     b = supply.bus(-(v_s + 2.0 * v_d), r_s, c, r, l, r_e)
+    return _eddy_run(b, i0, v0, i_drop, v_s, v_d, r_e)[0]
+
+
+def _eddy_run(b, i0, v0, i_drop, v_s, v_d, r_e):
+    """:func:`eddy_decay` on the circuit ``b`` (a :class:`coildrive.model.supply.Bus` in
+    ``u``: the source's, or with no source the capacitor alone) from ``i0`` A and the bus
+    at ``v0`` V: ``(FastDecay, at)`` with ``at(t) -> (i_m A, u V)``."""
+    from . import supply
+
+    l, r = b.l, b.r
+    u0 = -(v0 + 2.0 * v_d)
     k = r_e / (r + r_e)
 
     def at(t):
@@ -193,7 +207,47 @@ def eddy_decay(i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e) -> FastDecay:
     v_top = -u_low - 2.0 * v_d
     charge = supply.integrals_from(t_zero, b, i0, u0)[0]
     return FastDecay(t_drop, t_zero, v_top, np.maximum(v_top, v_s), np.where(v_top > v_s, t_low, np.inf),
-                     -u_z - 2.0 * v_d, charge)
+                     -u_z - 2.0 * v_d, charge), at
+
+
+def eddy_decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e) -> FastDecay:
+    """:func:`eddy_decay` on a supply that cannot sink (as :func:`decay_no_sink`): with the
+    source until the bus reaches ``v_s`` V (it rises monotonically to its first maximum: a
+    bisection there), then the capacitor alone, the same closed form with no source
+    (``R_s -> inf``: ``A = [[-k R/L, k/L], [-k/C, -k/(R_e C)]]``, steady state 0), until
+    the terminal current's zero; the bus rises to it and stays there, the flux's tail
+    through ``R_e`` after it."""
+    import dataclasses
+
+    from . import supply
+
+    i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e = np.broadcast_arrays(
+        *(np.asarray(x, float) for x in (i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e)))
+    b_fed = supply.bus(-(v_s + 2.0 * v_d), r_s, c, r, l, r_e)
+    fed, at = _eddy_run(b_fed, i0, np.minimum(v0, v_s), i_drop, v_s, v_d, r_e)
+    reach = (fed.bus_top > v_s) & (v0 < v_s)
+    lo_t, hi_t = np.zeros_like(v0), np.where(reach, fed.bus_max_time, 0.0)
+    for _ in range(BISECTION_STEPS):
+        mid = 0.5 * (lo_t + hi_t)
+        below = -at(mid)[1] - 2.0 * v_d < v_s
+        lo_t, hi_t = np.where(below, mid, lo_t), np.where(below, hi_t, mid)
+    blocked = reach | (v0 >= v_s)
+    t_a = np.where(v0 >= v_s, 0.0, np.where(reach, hi_t, fed.zero_time))
+    i_a = np.where(v0 >= v_s, i0, np.where(reach, at(t_a)[0], 0.0))
+    v_a = np.where(blocked, np.maximum(v0, v_s), fed.bus_at_zero)
+    u0 = -(np.minimum(v0, v_s) + 2.0 * v_d)
+    q_a = np.where(v0 >= v_s, 0.0, np.where(reach, supply.integrals_from(t_a, b_fed, i0, u0)[0], fed.charge))
+    with np.errstate(invalid="ignore"):       # (its v_ss: 0 - inf x 0)
+        none = dataclasses.replace(supply.bus(np.zeros_like(v_s), np.full_like(v_s, np.inf), c, r, l, r_e),
+                                   v_ss=np.zeros_like(v_s))
+    alone, _ = _eddy_run(none, np.where(blocked, i_a, i0), np.where(blocked, v_a, v_s), i_drop, v_s, v_d, r_e)
+    v_end = np.where(blocked, alone.bus_at_zero, fed.bus_at_zero)
+    t_drop = np.where(~blocked | (i_a <= i_drop), fed.drop_time, t_a + alone.drop_time)
+    t_zero = np.where(blocked, t_a + alone.zero_time, fed.zero_time)
+    bus_top = np.where(blocked, v_end, fed.bus_top)
+    when = np.where(blocked, t_zero, fed.bus_max_time)
+    return FastDecay(t_drop, t_zero, bus_top, np.maximum(bus_top, v_s), np.where(bus_top > v_s, when, np.inf),
+                     v_end, q_a + np.where(blocked, c * (v_end - v_a), 0.0))
 
 
 def decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, l, v_d) -> FastDecay:

@@ -208,15 +208,20 @@ def equivalent(v_s, r_s, c, r, coil: FluxCoil, r_e=None) -> FluxBus:
     """The circuit of the module docstring (arrays of one shape, ``coil``'s scale too), not
     cached: with an eddy resistance ``r_e`` ohm its equivalent plain circuit (source
     ``V_s/a``, ``k R_s/a``, ``C/k``, the curve scaled by ``1/k``), the bus starting at
-    ``v_s``."""
+    ``v_s``. With an eddy term ``r_s`` may be ``inf`` (no source: the capacitor alone feeds
+    the coil, or takes its current back): the limit, source 0 V behind ``R_e``."""
     v_s, r_s, c, r = (np.array(x, float) for x in (v_s, r_s, c, r))
     if r_e is None:
         return FluxBus(v_s, r_s, c, r, coil, v_s / (r + r_s))
     g_e = 1.0 / np.asarray(r_e, float)
     k = 1.0 / (1.0 + r * g_e)           # R_e/(R + R_e)
     a = 1.0 + k * g_e * r_s
-    return FluxBus(v_s / a, k * r_s / a, c / k, r, coil.with_scale(np.asarray(coil.scale, float) / k),
-                   v_s / (r + r_s), g_e=g_e, v0=v_s)
+    none = np.isinf(r_s)
+    with np.errstate(invalid="ignore"):
+        v_eq = np.where(none, 0.0, v_s / a)
+        r_eq = np.where(none, 1.0 / g_e, k * r_s / a)
+    return FluxBus(v_eq, r_eq, c / k, r, coil.with_scale(np.asarray(coil.scale, float) / k),
+                   np.where(none, 0.0, v_s / (r + r_s)), g_e=g_e, v0=v_s)
 
 
 def _phases(fb: FluxBus) -> list[tuple[int, np.ndarray]]:

@@ -41,7 +41,7 @@ terminal current) end there. The flux then dies through ``R_e`` alone (``dpsi/dt
 i_m``, the curve's exact quadrature :func:`coildrive.model.flux.time`), so a drop-out
 current below the block current is reached that much later; the bus, cut off from the
 coil, relaxes to ``V_s`` (never above the highest it reached). The run stops once every
-point's terminal current has crossed zero.
+point's terminal current has crossed zero. A supply that cannot sink: :func:`decay_no_sink`.
 
 All functions broadcast over numpy arrays; units are A, V, ohm, H, Wb, F, s.
 """
@@ -74,6 +74,7 @@ def _record(i0, v0, v_s, r_s, c, r, coil: FluxCoil, v_d, r_e=None):
     (terminal) current has crossed zero: ``(FluxBus, Record)``; with an eddy resistance
     ``r_e`` ohm on the equivalent plain circuit (:func:`coildrive.model.flux_bus.equivalent`)."""
     fb = flux_bus.equivalent(-(v_s + 2.0 * v_d), r_s, c, r, coil, r_e)
+    alone = np.isinf(r_s)
     u_s, r_s, c, coil = fb.v_s, fb.r_s, fb.c, fb.coil       # the equivalent's (the same without R_e)
     cv, s = coil.curve, coil.scale
     k0 = np.clip(np.searchsorted(cv.current, i0, side="right") - 1, 0, cv.base.size - 1)
@@ -84,7 +85,10 @@ def _record(i0, v0, v_s, r_s, c, r, coil: FluxCoil, v_d, r_e=None):
     psi0 = s * cv.psi(i0)
     grid = np.linspace(0.0, 1.0, 33).reshape((-1,) + (1,) * i0.ndim) * i0
     l_min = np.maximum((s * cv.incremental(grid)).min(axis=0), 1e-300)
-    g = r + r_s
+    # the explicit part's stiffness, (R + R_s)/L_d; the capacitor alone (an eddy term's R_e
+    # as the equivalent's R_s, its R_s C/k far slower than the coil) keeps w - R_s i through
+    # the steps (the stages of both move together), so its own R/L_d and the ringing set the step
+    g = np.where(alone, r, r + r_s)
     lo = np.minimum(v0, v_s) + 2.0 * v_d
     with np.errstate(divide="ignore", invalid="ignore"):
         bound = np.where(lo > 0, psi0 / lo, psi0 / np.maximum(r * i0, 1e-300) * 5.0)
@@ -169,7 +173,8 @@ def _shaped(d: FastDecay, shape) -> FastDecay:
 
 
 def _decay(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d, r_e=None):
-    """:func:`decay` on broadcast points: ``(FastDecay, its Record)``."""
+    """:func:`decay` on broadcast points: ``(FastDecay, its Record, the circuit)`` (with an
+    eddy term ``r_s`` may be ``inf``: the capacitor alone, the feed blocked)."""
     fb, rec = _record(i0, v0, v_s, r_s, c, r, coil, v_d, r_e)
     seg, flow = flux_bus.segments(rec)[:6], _terminal_segments(rec, fb)
     t_zero = _fall(flow, 0.0)
@@ -183,19 +188,24 @@ def _decay(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d, r_e=None):
     v_top = -u_low - 2.0 * v_d
     v_z = -u_z - 2.0 * v_d
     return FastDecay(t_drop, t_zero, v_top, np.maximum(v_top, v_s), np.where(v_top > v_s, t_low, np.inf), v_z,
-                     _charge(flow, t_zero)), rec
+                     _charge(flow, t_zero)), rec, fb
 
 
-def decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d) -> FastDecay:
+def decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d, r_e=None) -> FastDecay:
     """:func:`decay` on a supply that cannot sink (an ideal one-way feed, as
     :func:`coildrive.model.bus_decay.decay_no_sink`): with the source until the bus reaches
     ``v_s`` V (the first crossing in the run), then into ``C`` alone, the saturating
     coil's series RLC circuit of :func:`coildrive.model.bridge.flux_pump_up` (stepped in
     the falling current) down to the drop-out current and to zero. ``bus_max`` is the bus
     when the current stops (or ``v_s``, which a bus that never got there relaxes back
-    to)."""
-    shape, (i0, v0, i_drop, v_s, r_s, c, r, coil, v_d, _) = _points(i0, v0, i_drop, v_s, r_s, c, r, coil, v_d)
-    fed, rec = _decay(i0, np.minimum(v0, v_s), i_drop, v_s, r_s, c, r, coil, v_d)
+    to). With an eddy resistance ``r_e`` ohm (module docstring; magnetising currents) the
+    capacitor alone is the same stepped circuit with no source (``R_s -> inf``,
+    :func:`coildrive.model.flux_bus.equivalent`) from the moment the bus reaches ``v_s``,
+    until the terminal current's zero (the bus rises to it and stays: nothing takes it
+    back), the flux's tail through ``R_e`` after it."""
+    shape, (i0, v0, i_drop, v_s, r_s, c, r, coil, v_d, r_e) = _points(i0, v0, i_drop, v_s, r_s, c, r, coil, v_d,
+                                                                        r_e)
+    fed, rec, fb = _decay(i0, np.minimum(v0, v_s), i_drop, v_s, r_s, c, r, coil, v_d, r_e)
     # the bus reaches v_s (u falls to -(v_s + 2 V_d)) before the current stops
     u_s = -(v_s + 2.0 * v_d)
     t0, h, _, _, _, _, u0, u1, du0, du1 = flux_bus.segments(rec)
@@ -203,12 +213,22 @@ def decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d) -> FastDe
     reach = found & (v0 < v_s)
     t_reach = np.where(reach, t_u, 0.0)
     blocked = reach | (v0 >= v_s)
-    fb = flux_bus.FluxBus(u_s, r_s, c, r, coil, u_s / (r + r_s)).with_record(rec)
     i_reach = flux_bus.state(t_reach, fb)[0]
     t_a = np.where(v0 >= v_s, 0.0, np.where(reach, t_reach, fed.zero_time))
     i_a = np.where(v0 >= v_s, i0, np.where(reach, i_reach, 0.0))
     v_a = np.where(blocked, np.maximum(v0, v_s), fed.bus_at_zero)
-    q_a = np.where(v0 >= v_s, 0.0, np.where(reach, _charge(flux_bus.segments(rec)[:6], t_a), fed.charge))
+    q_a = np.where(v0 >= v_s, 0.0, np.where(reach, _charge(_terminal_segments(rec, fb), t_a), fed.charge))
+    if r_e is not None:   # the capacitor alone (the points that never reach v_s run it from i0, unused)
+        alone = _decay(np.where(blocked, i_a, i0), np.where(blocked, v_a, v_s), i_drop, v_s, np.full_like(v_s, np.inf),
+                       c, r, coil, v_d, r_e)[0]
+        v_end = np.where(blocked, alone.bus_at_zero, fed.bus_at_zero)
+        t_drop = np.where(~blocked | (i_a <= i_drop), fed.drop_time, t_a + alone.drop_time)
+        t_zero = np.where(blocked, t_a + alone.zero_time, fed.zero_time)
+        bus_top = np.where(blocked, v_end, fed.bus_top)
+        when = np.where(blocked, t_zero, fed.bus_max_time)
+        return _shaped(FastDecay(t_drop, t_zero, bus_top, np.maximum(bus_top, v_s),
+                                 np.where(bus_top > v_s, when, np.inf), v_end,
+                                 q_a + np.where(blocked, c * (v_end - v_a), 0.0)), shape)
     i_b = np.where(blocked, i_a, 0.0)
     full = flux_pump_up(i_b, v_a, c, r, coil, v_d)
     to_drop = flux_pump_up(i_b, v_a, c, r, coil, v_d, i_end=np.minimum(i_drop, i_b))
