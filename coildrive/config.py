@@ -1424,8 +1424,8 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     (the droop is the peak's; a regulated hold takes it out of the hold) and any freewheel path (a clamp's release, which draws from the bus, is
     computed on the undrooped bus: the safe side). A moving armature: a linear coil or its
     open and seated curves, one switch, a voltage-mode open-loop hold (the pull-in run
-    carries the capacitor, :mod:`coildrive.model.armature_runs`; a curve or an eddy term,
-    not both). Anything else is refused in one line rather than designed on a stiff bus."""
+    carries the capacitor, :mod:`coildrive.model.armature_runs`; an eddy term, curves, or
+    both). Anything else is refused in one line rather than designed on a stiff bus."""
     if not supply.droops:
         return
     why = None
@@ -1437,8 +1437,6 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
         key, why = "hold.regulation", "a full bridge with a closed-loop hold"
     elif armature is not None and switch.topology == "full_bridge":
         key, why = "armature", "a moving armature on a full bridge"
-    elif armature is not None and coil.flux_current and coil.eddy_resistance:
-        key, why = "armature", "a moving armature over a flux-linkage curve with an eddy-current term"
     elif armature is not None and _open_loop_refusal(hold, None):
         key, why = _open_loop_refusal(hold, None)
         why += " and a moving armature"
@@ -1446,8 +1444,7 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
                          f"{why}: expected source_resistance left out, or one switch (a full bridge: "
                          "a voltage-mode, slow-decay, open-loop hold, no [armature]; an "
-                         "[armature]: one switch, a voltage-mode open-loop hold, a curve or an eddy "
-                         "term, not both)")
+                         "[armature]: one switch and a voltage-mode open-loop hold)")
 
 
 def _read_boost(s: "_Section") -> tuple:

@@ -157,15 +157,3 @@ def test_design_simulate_and_check_end_to_end(tmp_path):
     des = design(drive)
     report = check_capture(synth_design_capture(des, actuations=1, hold_time=0.02, noise_codes=1.0, seed=3), des)
     assert report.ok, [(i.name, i.status, i.detail) for i in report.items]
-
-
-def test_armature_over_the_curves_stays_refused(tmp_path):
-    """One line naming the key, exit 2: a moving armature over curves with an eddy term on
-    the drooping bus."""
-    from test_armature_curves import curve_drive
-    p = curve_drive(tmp_path)
-    p.write_text(p.read_text().replace('max = "13.2 V"', 'max = "13.2 V"\nsource_resistance = "2 ohm"\n'
-                                       'capacitance = "220 uF"', 1).replace("[coil]", '[coil]\neddy_resistance = "150 ohm"', 1))
-    r = run_cli("design", str(p), cwd=EXAMPLES)
-    lines = r.stderr.strip().splitlines()
-    assert r.returncode == 2 and len(lines) == 1 and "armature" in lines[0] and "eddy" in lines[0], r.stderr
