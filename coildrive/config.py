@@ -1421,8 +1421,9 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     (a voltage-mode, slow-decay, open-loop hold; its fast decay into the bus is
     :mod:`coildrive.model.bus_decay`, with a curve :mod:`coildrive.model.flux_bus_decay`,
     on a supply that cannot sink with the feed blocking, with an eddy term too). Any hold
-    (the droop is the peak's; a regulated hold takes it out of the hold) and any freewheel path (a clamp's release, which draws from the bus, is
-    computed on the undrooped bus: the safe side). A moving armature: a linear coil or its
+    (the droop is the peak's; a regulated hold takes it out of the hold) and any freewheel
+    path (a clamp's release, which draws from the bus, is computed on the undrooped bus:
+    the safe side). A moving armature: a linear coil or its
     open and seated curves, one switch, a voltage-mode open-loop hold (the pull-in run
     carries the capacitor, :mod:`coildrive.model.armature_runs`; an eddy term, curves, or
     both). Anything else is refused in one line rather than designed on a stiff bus."""

@@ -53,11 +53,12 @@ All functions broadcast over numpy arrays; units are A, V, ohm, H, F, s.
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
 
-from . import linear2, rlc
+from . import linear2, rlc, supply
 
 #: Bisection steps for the drop-out and zero times: the bracket shrinks 2^-60.
 BISECTION_STEPS = 60
@@ -165,8 +166,6 @@ def eddy_decay(i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e) -> FastDecay:
     ``u``, exact) and the charge (the terminal current's, exact) end there; the flux then
     dies through ``R_e`` alone, ``i_m = i_z e^{-t R_e/L}``, so a drop-out current below
     the block current ``i_z`` is reached ``(L/R_e) ln(i_z/i_drop)`` later."""
-    from . import supply
-
     i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e = np.broadcast_arrays(
         *(np.asarray(x, float) for x in (i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e)))
     b = supply.bus(-(v_s + 2.0 * v_d), r_s, c, r, l, r_e)
@@ -177,8 +176,6 @@ def _eddy_run(b, i0, v0, i_drop, v_s, v_d, r_e):
     """:func:`eddy_decay` on the circuit ``b`` (a :class:`coildrive.model.supply.Bus` in
     ``u``: the source's, or with no source the capacitor alone) from ``i0`` A and the bus
     at ``v0`` V: ``(FastDecay, at)`` with ``at(t) -> (i_m A, u V)``."""
-    from . import supply
-
     l, r = b.l, b.r
     u0 = -(v0 + 2.0 * v_d)
     k = r_e / (r + r_e)
@@ -217,22 +214,15 @@ def eddy_decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e) -> FastDecay
     (``R_s -> inf``: ``A = [[-k R/L, k/L], [-k/C, -k/(R_e C)]]``, steady state 0), until
     the terminal current's zero; the bus rises to it and stays there, the flux's tail
     through ``R_e`` after it."""
-    import dataclasses
-
-    from . import supply
-
     i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e = np.broadcast_arrays(
         *(np.asarray(x, float) for x in (i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e)))
     b_fed = supply.bus(-(v_s + 2.0 * v_d), r_s, c, r, l, r_e)
     fed, at = _eddy_run(b_fed, i0, np.minimum(v0, v_s), i_drop, v_s, v_d, r_e)
     reach = (fed.bus_top > v_s) & (v0 < v_s)
-    lo_t, hi_t = np.zeros_like(v0), np.where(reach, fed.bus_max_time, 0.0)
-    for _ in range(BISECTION_STEPS):
-        mid = 0.5 * (lo_t + hi_t)
-        below = -at(mid)[1] - 2.0 * v_d < v_s
-        lo_t, hi_t = np.where(below, mid, lo_t), np.where(below, hi_t, mid)
+    # the bus's shortfall below v_s falls to zero on its rise to its first maximum
+    t_reach = _fall(lambda t: v_s + 2.0 * v_d + at(t)[1], v_s - v0, 0.0, np.where(reach, fed.bus_max_time, 0.0))
     blocked = reach | (v0 >= v_s)
-    t_a = np.where(v0 >= v_s, 0.0, np.where(reach, hi_t, fed.zero_time))
+    t_a = np.where(v0 >= v_s, 0.0, np.where(reach, t_reach, fed.zero_time))
     i_a = np.where(v0 >= v_s, i0, np.where(reach, at(t_a)[0], 0.0))
     v_a = np.where(blocked, np.maximum(v0, v_s), fed.bus_at_zero)
     u0 = -(np.minimum(v0, v_s) + 2.0 * v_d)

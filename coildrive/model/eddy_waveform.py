@@ -11,8 +11,9 @@ after a time is read back from the table. The terminal current steps at every sw
 edge, so each edge has two samples at the same time (before and after). The release is
 drawn until the magnetising current has fallen to 1 % of where it started. On a drooping
 bus (``supply.source_resistance``) the peak is :mod:`coildrive.model.supply`'s closed form
-(its magnetising and terminal currents; a curve's, :mod:`coildrive.model.flux_bus`'s run), from a boost :mod:`coildrive.model.boost`'s; the hold that follows sees the stiff supply, as
-:func:`coildrive.model.waveform.peak_samples` has it.
+(its magnetising and terminal currents; a curve's, :mod:`coildrive.model.flux_bus`'s
+run), from a boost :mod:`coildrive.model.boost`'s; the hold that follows sees the stiff
+supply, as :func:`coildrive.model.waveform.peak_samples` has it.
 """
 
 from __future__ import annotations
@@ -170,8 +171,8 @@ def _peak(drive: Drive, lp: Loop, peak_time: float, big: int):
     """The operating point's tables and the peak's ``big`` + 1 samples from zero flux:
     ``(point, magnetising current at the peak's end A, [time], [terminal], [magnetising],
     [switch_on])``; on a drooping bus (``supply.source_resistance``) the peak's closed
-    form of :mod:`coildrive.model.supply` (a curve: :mod:`coildrive.model.flux_bus`'s run), from a boost (``supply.boost``, at its nominal)
-    :mod:`coildrive.model.boost`'s."""
+    form of :mod:`coildrive.model.supply` (a curve: :mod:`coildrive.model.flux_bus`'s
+    run), from a boost (``supply.boost``, at its nominal) :mod:`coildrive.model.boost`'s."""
     e = lp.inductance[...]
     v, r_on = (float(np.ravel(x)[0]) for x in (lp.v_on, lp.r_on))
     tp = np.linspace(0.0, peak_time, big + 1)
