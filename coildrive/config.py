@@ -1414,24 +1414,22 @@ def resolve_board(spec: str, relative_to: Path | None = None) -> Path:
 def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
                  armature: Armature | None, hold: Hold) -> None:
     """What the drooping bus (``supply.source_resistance``) is modelled with: a linear coil
-    (or an eddy-current term, or a flux-linkage curve, not both), one switch (low or high
-    side) or a full bridge (a voltage-mode, slow-decay, open-loop hold; its fast decay
-    into the bus is :mod:`coildrive.model.bus_decay`, with a curve
-    :mod:`coildrive.model.flux_bus_decay`, on a supply that cannot sink with the feed
-    blocking). Any hold (the droop is the peak's; a regulated hold takes it out of
-    the hold) and any freewheel path (a clamp's release, which draws from the bus, is
-    computed on the undrooped bus: the safe side). A moving armature: a linear coil or its
-    open and seated curves, one switch, a voltage-mode (fixed, supply-table or closed-loop)
-    or current-mode hold (the pull-in run carries the capacitor,
-    :mod:`coildrive.model.armature_runs`; the hold is regulated on the stiff bus). Anything else is refused in one line rather
-    than designed on a stiff bus."""
+    or a flux-linkage curve, either with an eddy-current term (a curve with one:
+    :func:`coildrive.model.flux_bus.bus`), one switch (low or high side) or a full bridge
+    (a voltage-mode, slow-decay, open-loop hold; its fast decay into the bus is
+    :mod:`coildrive.model.bus_decay`, with a curve :mod:`coildrive.model.flux_bus_decay`,
+    on a supply that cannot sink with the feed blocking, with an eddy term too). Any hold
+    (the droop is the peak's; a regulated hold takes it out of the hold) and any freewheel
+    path (a clamp's release, which draws from the bus, is computed on the undrooped bus:
+    the safe side). A moving armature: a linear coil or its open and seated curves (an
+    eddy term, curves, or both), one switch, a voltage-mode (fixed, supply-table or
+    closed-loop) or current-mode hold (the pull-in run carries the capacitor,
+    :mod:`coildrive.model.armature_runs`; the hold is regulated on the stiff bus). Anything
+    else is refused in one line rather than designed on a stiff bus."""
     if not supply.droops:
         return
     why = None
-    if coil.flux_current and coil.eddy_resistance:
-        key = "coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance"
-        why = "a flux-linkage curve and an eddy-current term together"
-    elif switch.topology == "full_bridge" and hold.fast_fraction > 0:
+    if switch.topology == "full_bridge" and hold.fast_fraction > 0:
         key, why = "hold.fast_fraction", "a full bridge's mixed-decay hold"
     elif switch.topology == "full_bridge" and hold.mode != "voltage":
         key, why = "hold.mode", f"a full bridge with hold.mode = {hold.mode!r}"
@@ -1443,9 +1441,9 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
         key, why = "hold.mode", "a latching coil with a moving armature"
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
-                         f"{why}: expected source_resistance left out, or a coil with a curve or an "
-                         "eddy term (not both; a full bridge: a voltage-mode, slow-decay, open-loop hold, "
-                         "no [armature]; an [armature]: one switch)")
+                         f"{why}: expected source_resistance left out, or one switch (a full bridge: "
+                         "a voltage-mode, slow-decay, open-loop hold, no [armature]; a latching coil: "
+                         "no [armature])")
 
 
 def _read_boost(s: "_Section") -> tuple:

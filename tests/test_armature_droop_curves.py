@@ -17,7 +17,10 @@ references, named beside each check:
 
   on the open stop until the force beats spring + load, then free to the seat
   (inelastic), then seated to the peak's end: the move, the seat, the current at the
-  peak's end and the lowest bus, within 1e-5;
+  peak's end and the lowest bus, within 1e-5. With an eddy resistance ``R_e`` across the
+  branch (Kirchhoff: the loop ``u = R i + R_e (i - i_m)`` solved for the terminal current
+  ``i``, ``i_m = i(psi, x)`` the magnetising one): ``dpsi/dt = R_e (i - i_m)`` and the bus
+  feeds ``i``;
 * conservation of energy over the peak (first law, the terms written afresh from the
   simulated samples, the field's store from the PCHIP's antiderivative), within 1 %.
 
@@ -58,8 +61,9 @@ def fresh():
     return Fresh()
 
 
-def reference(fresh, p, rs: float, c: float, t_peak: float) -> dict:
-    """solve_ivp (DOP853) of the equations of the module docstring, three pieces."""
+def reference(fresh, p, rs: float, c: float, t_peak: float, r_e: float | None = None) -> dict:
+    """solve_ivp (DOP853) of the equations of the module docstring, three pieces (with an
+    eddy resistance ``r_e`` ohm: the current the magnetising one)."""
     from scipy.integrate import solve_ivp
 
     g = {n: float(getattr(p, n)[0]) for n in p.arrays}
@@ -68,16 +72,16 @@ def reference(fresh, p, rs: float, c: float, t_peak: float) -> dict:
     def opening(x):
         return g["preload"] + g["rate"] * (stroke - x) + g["load"]
 
-    def du(i, u):
-        return ((vs - u) / rs - i) / c
+    def loop(i_m, u):   # (dpsi/dt, the bus's rate): the loop's terminal current, eddy current too
+        i = i_m if r_e is None else (u + r_e * i_m) / (r + r_e)
+        return u - r * i, ((vs - u) / rs - i) / c
 
     # (max_step: the trial stages stay inside the tables brentq searches)
     tol = dict(rtol=1e-11, atol=1e-13, method="DOP853", dense_output=True, max_step=1e-4)
 
     def rest(x):
         def fun(_t, y):
-            i = fresh.current(y[0], x)
-            return [y[1] - r * i, du(i, y[1])]
+            return list(loop(fresh.current(y[0], x), y[1]))
         return fun
 
     def start(_t, y):
@@ -88,8 +92,8 @@ def reference(fresh, p, rs: float, c: float, t_peak: float) -> dict:
 
     def flight(_t, y):
         psi, x, v, u = y
-        i = fresh.current(psi, x)
-        return [u - r * i, v, (opening(x) - fresh.closing_force(psi) - g["damping"] * v) / g["mass"], du(i, u)]
+        dpsi, du = loop(fresh.current(psi, x), u)
+        return [dpsi, v, (opening(x) - fresh.closing_force(psi) - g["damping"] * v) / g["mass"], du]
 
     def seat(_t, y):
         return y[1]
@@ -104,12 +108,15 @@ def reference(fresh, p, rs: float, c: float, t_peak: float) -> dict:
                 early_i=fresh.current(psi_e, stroke), early_low=float(np.min(s1.sol(np.linspace(0, EARLY, 2001))[1])))
 
 
+@pytest.mark.parametrize("r_e", [None, 40.0], ids=["", "eddy"])
 @pytest.mark.parametrize("bus", BUSES, ids=[b[0] for b in BUSES])
-def test_pull_in_against_solve_ivp(fresh, bus):
+def test_pull_in_against_solve_ivp(fresh, bus, r_e):
     _, rs, c = bus
     p = _params(rs, c)
+    if r_e is not None:   # an eddy term too: the pull-in's is the magnetising current
+        p = dataclasses.replace(p, eddy=np.array([r_e]))
     pin = pull_in(p, peak_time=PEAK)
-    ref = reference(fresh, p, rs, c, PEAK)   # scipy solve_ivp (DOP853) + PCHIP, written afresh
+    ref = reference(fresh, p, rs, c, PEAK, r_e)   # scipy solve_ivp (DOP853) + PCHIP, written afresh
     assert pin.status[0] == SEATED
     assert pin.start_time[0] == pytest.approx(ref["move"], rel=1e-5), "the armature moves"
     assert pin.seat_time[0] == pytest.approx(ref["seat"], rel=1e-5), "pull-in moment"
@@ -149,13 +156,17 @@ def test_energy_balance_of_the_pull_in(fresh):
     assert 0.5 * c * (g["v_on"] ** 2 - u[-1] ** 2) > 1e-3 * source, "the bus's own terms count"
 
 
-def test_simulate_on_the_drooping_bus(tmp_path, fresh):
+@pytest.mark.parametrize("r_e", [None, 40.0], ids=["", "eddy"])
+def test_simulate_on_the_drooping_bus(tmp_path, fresh, r_e):
     """The CLI end to end: the locker latch (invented) with its two curves behind 2 ohm and
-    220 uF is no longer refused; simulate's bus_v column falls to the lowest bus of
-    solve_ivp (DOP853 + PCHIP, written afresh) over the peak it reports, within 1e-4 V."""
+    220 uF (and a 40 ohm eddy term) is no longer refused; simulate's bus_v column falls to
+    the lowest bus of solve_ivp (DOP853 + PCHIP, written afresh) over the peak it reports,
+    within 1e-4 V (with the eddy term: to the pull-in run's, checked against solve_ivp in
+    :func:`test_pull_in_against_solve_ivp`)."""
     path = curve_drive(tmp_path)
-    path.write_text(path.read_text().replace('max = "13.2 V"', 'max = "13.2 V"\nsource_resistance = "2 ohm"\n'
-                                             'capacitance = "220 uF"', 1))
+    text = path.read_text().replace('max = "13.2 V"', 'max = "13.2 V"\nsource_resistance = "2 ohm"\n'
+                                    'capacitance = "220 uF"', 1)
+    path.write_text(text if r_e is None else text.replace("[coil]", f'[coil]\neddy_resistance = "{r_e:g} ohm"', 1))
     csv = tmp_path / "sim.csv"
     r = run_cli("simulate", str(path), "--supply", "10.8", "--coil-temp", "130", "--csv", str(csv),
                 "--hold-time", "0.004", cwd=EXAMPLES)
@@ -166,9 +177,11 @@ def test_simulate_on_the_drooping_bus(tmp_path, fresh):
     d = load_drive(path)
     one = np.array([1.0])
     p = params_from_loop(d.armature, loop(d, np.array([10.8]), np.array([130.0]), one, one), one,
-                         bus=(2.0, 220e-6))
-    ref = reference(fresh, p, 2.0, 220e-6, peak)
-    assert float(np.min(data["bus_v"])) == pytest.approx(ref["low"], abs=1e-4)
+                         d.coil.eddy_resistance, bus=(2.0, 220e-6))
+    assert (p.eddy is None) == (r_e is None)
+    low = reference(fresh, p, 2.0, 220e-6, peak)["low"] if r_e is None else float(pull_in(p, peak_time=peak)
+                                                                                   .lowest_bus[0])
+    assert float(np.min(data["bus_v"])) == pytest.approx(low, abs=1e-4)
     assert data["bus_v"][-1] == pytest.approx(10.8), "the hold and release on the stiff supply"
 
 

@@ -45,14 +45,15 @@ V_FAST = V_SUP + 2 * V_D
 I_DROP = 0.05
 
 
-def _eddy(text: str) -> str:
-    """The bridge's netlist with ``REDDY`` across ``LCOIL`` and the ammeter ``VLM`` in its branch."""
+def _eddy(text: str, r_e: float = R_E) -> str:
+    """The bridge's netlist with ``REDDY`` (``r_e`` ohm) across ``LCOIL`` and the ammeter
+    ``VLM`` in its branch."""
     out = []
     for line in text.splitlines():
         if line.startswith("LCOIL "):
             node_a, node_b = line.split()[1:3]
             out += ["VLM " + node_a + " nm DC 0", line.replace(f"LCOIL {node_a} ", "LCOIL nm ", 1),
-                    f"REDDY {node_a} {node_b} {R_E!r}"]
+                    f"REDDY {node_a} {node_b} {r_e!r}"]
         else:
             out.append(line)
     return "\n".join(out) + "\n"

@@ -20,7 +20,6 @@ the model steps it by ETDRK4 with events at the table's points. References:
 from __future__ import annotations
 
 import json
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -53,8 +52,11 @@ def _model(vs, rs, c, r, scale, i_pull, t_end):
     return float(flux_bus.rise_time(i_pull, b)), float(v_low), float(flux_bus.current(t_end, b))
 
 
-def _reference(vs, rs, c, r, scale, i_pull, t_end):
-    """scipy's solve_ivp, piece by piece of the table: ``(pull-in s, lowest bus V, end A)``."""
+def _reference(vs, rs, c, r, scale, i_pull, t_end, r_e=None):
+    """scipy's solve_ivp, piece by piece of the table: ``(pull-in s, lowest bus V, end A,
+    end bus V)``. With an eddy resistance ``r_e`` ohm across the curve (Kirchhoff: the loop
+    ``v = R i + R_e (i - i_m)`` solved for the terminal current ``i`` at every step, the
+    branch ``dpsi/dt = R_e (i - i_m)``), the current is the magnetising one."""
     from scipy.integrate import solve_ivp
 
     cv = flux.curve(CURVE_I, CURVE_PSI)
@@ -69,7 +71,10 @@ def _reference(vs, rs, c, r, scale, i_pull, t_end):
     t_pull, v_low = None, vs
     while t < t_end:
         def f(_, x):
-            return [(x[1] - r * x[0]) / ld(x[0], k), ((vs - x[1]) / rs - x[0]) / c]
+            if r_e is None:
+                return [(x[1] - r * x[0]) / ld(x[0], k), ((vs - x[1]) / rs - x[0]) / c]
+            i = (x[1] + r_e * x[0]) / (r + r_e)
+            return [r_e * (i - x[0]) / ld(x[0], k), ((vs - x[1]) / rs - i) / c]
 
         def up(_, x):        # the next table point above
             return x[0] - (knots[k + 1] if k + 1 < knots.size else np.inf)
@@ -88,34 +93,47 @@ def _reference(vs, rs, c, r, scale, i_pull, t_end):
         t, y = float(sol.t[-1]), sol.y[:, -1]
         if sol.status == 1:   # a table point: on with the next piece
             k = k + 1 if sol.t_events[0].size else k - 1
-    return t_pull, v_low, float(y[0])
+    return t_pull, v_low, float(y[0]), float(y[1])
 
 
-def _spice(tmp_path, name, vs, rs, c, r, scale, i_pull, t_end) -> dict:
+def _spice(tmp_path, name, vs, rs, c, r, scale, i_pull, t_end, r_e=None) -> dict:
     """ngspice's figures (:func:`test_supply_droop.spice_droop`) with the flux-controlled
-    inductor of the curve x ``scale`` between the netlist's nodes ``a`` and ``m``."""
+    inductor of the curve x ``scale`` between the netlist's nodes ``a`` and ``m`` (and
+    ``r_e`` ohm across it, the magnetising current's ammeter in series)."""
     cv = flux.curve(CURVE_I, CURVE_PSI)
     i = np.linspace(0.0, 2.0 * vs / r, 2001)
     pairs = [f"{float(p):.12e}, {float(q):.12e}" for p, q in zip(scale * cv.psi(i), i)]
     rows = [", ".join(pairs[k:k + 6]) for k in range(0, len(pairs), 6)]
     lines = ["GINT 0 phi a m 1", "CPHI phi 0 1 IC=0", "RPHI phi 0 1e12", "BCOIL a m I = pwl(V(phi),",
              *(f"+ {row}," for row in rows[:-1]), f"+ {rows[-1]})"]
-    return spice_droop(tmp_path, name, vs, rs, c, r, None, i_pull, t_end, coil="\n".join(lines))
+    return spice_droop(tmp_path, name, vs, rs, c, r, None, i_pull, t_end, r_e, coil="\n".join(lines))
 
 
-@pytest.mark.parametrize("case", CASES, ids=[c[0] for c in CASES])
-def test_flux_droop_against_ngspice(tmp_path, case):
-    name, vs, rs, c, r, scale, i_pull, t_end = case
-    got = _spice(tmp_path, name, vs, rs, c, r, scale, i_pull, t_end)
-    t_pull, v_low, i_end = _model(vs, rs, c, r, scale, i_pull, t_end)
+def against_ngspice(tmp_path, name, vs, rs, c, r, scale, i_pull, t_end, r_e=None):
+    """The model's pull-in time, lowest bus and current at the end of the peak against
+    ngspice's (:func:`_spice`); with an eddy resistance ``r_e`` ohm the pull-in is the
+    magnetising current's, and both currents at the end are compared."""
+    got = _spice(tmp_path, name, vs, rs, c, r, scale, i_pull, t_end, r_e)
+    b = flux_bus.bus(vs, rs, c, r, _coil(scale), r_e)
+    t_pull, v_low = float(flux_bus.rise_time(i_pull, b)), float(flux_bus.lowest_bus(t_end, b)[0])
+    i_m, v = flux_bus.state(t_end, b)
+    i_end, i_m = float(flux_bus.terminal(i_m, v, b)), float(i_m)
     print(f"{name}: pull-in {t_pull / got['tpull'] - 1:+.2e}, lowest bus {v_low - got['vlow']:+.2e} V, "
-          f"end current {i_end / got['iend'] - 1:+.2e} (relative to ngspice)")
+          f"end current {i_end / got['iend'] - 1:+.2e}"
+          + ("" if r_e is None else f", magnetising {i_m / got['imend'] - 1:+.2e}") + " (relative to ngspice)")
     # ngspice transient (t_end/20000 steps; its pwl table stands for the interpolant to
-    # about 1e-6): 1e-4 + one step on the time, 1 mV on the bus, 1e-4 on the current
+    # about 1e-6): 1e-4 + one step on the time, 1 mV on the bus, 1e-4 on the currents
     step = t_end / 20000
     assert abs(t_pull - got["tpull"]) <= 1e-4 * t_pull + step, (t_pull, got)
     assert abs(v_low - got["vlow"]) <= 1e-3, (v_low, got)
     assert abs(i_end - got["iend"]) <= 1e-4 * i_end, (i_end, got)
+    if r_e is not None:
+        assert abs(i_m - got["imend"]) <= 1e-4 * i_m, (i_m, got)
+
+
+@pytest.mark.parametrize("case", CASES, ids=[c[0] for c in CASES])
+def test_flux_droop_against_ngspice(tmp_path, case):
+    against_ngspice(tmp_path, *case)
 
 
 @pytest.mark.parametrize("case", CASES, ids=[c[0] for c in CASES])
@@ -189,15 +207,6 @@ def test_design_and_simulate_end_to_end(tmp_path):
     rows, lp = simulated_peak(tmp_path, path, 20.0, 100.0, 200)
     fb = flux_bus.bus(20.0, 1.0, 220e-6, float(lp.r_on), lp.inductance.with_scale(1.0))
     np.testing.assert_allclose(rows[:, 1], flux_bus.current(rows[:, 0], fb), rtol=1e-8, atol=1e-10)
-
-
-def test_curve_and_eddy_term_together_refused(tmp_path):
-    path = Path(_drive(tmp_path))
-    path.write_text(path.read_text().replace("inductance_tolerance = 0.15",
-                                             'inductance_tolerance = 0.15\neddy_resistance = "300 ohm"'))
-    r = run_cli("design", str(path))
-    line = r.stderr.strip()
-    assert r.returncode == 2 and "\n" not in line and "coil.eddy_resistance" in line, line
 
 
 def test_capacitor_less_limit():

@@ -51,19 +51,22 @@ def spice_droop(tmp_path, name, vs, rs, c, r, l, i_pull, t_end, r_e=None, coil=N
     netlist (the module docstring), ``t_end / 20000`` s steps. With ``r_e`` ohm a resistor
     ``RE`` across the inductor and a 0 V source ``VLM`` in series with it (an ammeter for
     the magnetising current: ``tpull`` is its crossing, ``imend`` its value at ``t_end``).
-    ``coil``: netlist lines in place of the inductor, between nodes ``a`` and ``m``."""
+    ``coil``: netlist lines in place of the inductor, between nodes ``a`` and ``m`` (with
+    ``r_e`` the resistor and the ammeter go across them both)."""
     step = t_end / 20000
     coil = coil or f"L1 a m {l!r} IC=0"
     meas = f".meas tran tpull WHEN i(VM)={i_pull!r} CROSS=1"
+    top = "a"
     if r_e is not None:
-        coil = f"L1 a lm {l!r} IC=0\nVLM lm m DC 0\nRE a m {r_e!r}"
+        top = "x"
+        coil += f"\nVLM x a DC 0\nRE x m {r_e!r}"
         meas = (f".meas tran tpull WHEN i(VLM)={i_pull!r} CROSS=1\n"
                 f".meas tran imend FIND i(VLM) AT={t_end!r}")
     text = f"""* drooping bus: source, R_s, bulk C, coil R and L, switch
 VS src 0 DC {vs!r}
 RS src bus {rs!r}
 C1 bus 0 {c!r} IC={vs!r}
-RC bus a {r - R_SWITCH!r}
+RC bus {top} {r - R_SWITCH!r}
 {coil}
 VM m sw DC 0
 VG g 0 PULSE(0 1 0 1n 1n 1 2)

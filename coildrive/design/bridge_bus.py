@@ -1,8 +1,10 @@
 """A full bridge on the drooping bus (``supply.source_resistance``): its turn-offs push the
 coil's current back into the bus behind the source resistance and the bulk capacitor, so
 the bus rises above the source while the release starts from a bus that may sit below it
-(:mod:`coildrive.model.bus_decay`, closed form; a supply that cannot sink blocks at the
-source's voltage and the rest charges the capacitor alone)."""
+(:mod:`coildrive.model.bus_decay`, closed form, with an eddy term too; a supply that
+cannot sink blocks at the source's voltage and the rest charges the capacitor alone; a
+flux-linkage curve's, with or without an eddy term, :mod:`coildrive.model.flux_bus_decay`,
+stepped)."""
 
 from __future__ import annotations
 
@@ -14,6 +16,8 @@ import numpy as np
 from ..config import Drive
 from ..model import bus_decay, flux_bus_decay
 from ..model.circuit import full_bridge
+from ..model.eddy import EddyCoil
+from ..model.eddy import terminal as eddy_terminal
 from ..model.flux import FluxCoil
 from ..model.supply import bus_floor
 from .figures import worst
@@ -30,14 +34,18 @@ def bus_range(drive: Drive, res, peak_time, peak_end) -> tuple[np.ndarray, np.nd
     """``(lowest, highest)`` V the bus can be at when a full bridge turns off, per point: at
     most the source ``V_s``; at least the lowest bus of the peak (``peak_time`` s) or, once
     the coil draws no more than the larger of the end of the peak ``peak_end`` A and the
-    hold's top, the floor :func:`~coildrive.model.supply.bus_floor` under it (the slow decay
-    of the hold's off-times draws nothing from the bus); and never below ``-2 V_d``."""
+    hold's top (with an eddy term the terminal current they bound), the floor
+    :func:`~coildrive.model.supply.bus_floor` under it (the slow decay of the hold's
+    off-times draws nothing from the bus); and never below ``-2 V_d``."""
     lp = res.loop
     b = bus_at(drive, lp, lp.inductance)
     v_peak, _ = model_of(b).lowest_bus(np.broadcast_to(peak_time, lp.v_on.shape), b)
     end = np.broadcast_to(np.asarray(peak_end, float), lp.v_on.shape)
     top = np.maximum(np.where(np.isfinite(end), end, 0.0),
                      np.where(np.isfinite(res.hold.i_max), res.hold.i_max, 0.0))
+    if isinstance(lp.inductance, EddyCoil):
+        # the bus feeds the terminal current: at most (V_s + R_e i_m)/(R + R_e) (v <= V_s)
+        top = eddy_terminal(top, lp.v_on, lp.r_on, lp.inductance.resistance)
     floor = bus_floor(lp.v_on, drive.supply.source_resistance, top)
     # never below -2 V_d: the bridge's own body diodes (Q2 then Q1) clamp the bus there
     clamp = -2.0 * np.asarray(release_loop(res).diode(drive), float)
@@ -53,20 +61,28 @@ def decays(drive: Drive, res, i0, peak_time, peak_end) -> list[bus_decay.FastDec
     """The fast decay of ``i0`` A at the points of ``res`` from each of
     :data:`BRIDGE_STARTS` starting buses over :func:`bus_range` (a supply that cannot
     sink: :func:`coildrive.model.bus_decay.decay_no_sink`; a flux-linkage curve:
-    :mod:`coildrive.model.flux_bus_decay`, stepped)."""
+    :mod:`coildrive.model.flux_bus_decay`, stepped; an eddy term:
+    :func:`coildrive.model.bus_decay.eddy_decay` (``eddy_decay_no_sink``), or with a curve
+    the stepped ones, the currents the magnetising ones)."""
     s = drive.supply
     lp = release_loop(res)
     lo, hi = bus_range(drive, res, peak_time, peak_end)
     starts = [lo + (hi - lo) * k / (BRIDGE_STARTS - 1) for k in range(BRIDGE_STARTS)]
-    if isinstance(lp.inductance, FluxCoil):   # stepped: every start in one run
+    coil, eddy = lp.inductance, {}
+    if isinstance(coil, EddyCoil):
+        coil, eddy = coil.magnetising, {"r_e": coil.resistance}
+    if isinstance(coil, FluxCoil):   # stepped: every start in one run
         fast = flux_bus_decay.decay if s.sink else flux_bus_decay.decay_no_sink
         d = fast(i0, np.stack(np.broadcast_arrays(*starts)), drive.release.current, lp.v_on, s.source_resistance,
-                 s.capacitance, lp.r_off, lp.inductance, lp.diode(drive))
+                 s.capacitance, lp.r_off, coil, lp.diode(drive), **eddy)
         return [bus_decay.FastDecay(*(getattr(d, f.name)[k] for f in dataclasses.fields(d)))
                 for k in range(BRIDGE_STARTS)]
-    fast = bus_decay.decay if s.sink else bus_decay.decay_no_sink
+    if eddy:
+        fast = bus_decay.eddy_decay if s.sink else bus_decay.eddy_decay_no_sink
+    else:
+        fast = bus_decay.decay if s.sink else bus_decay.decay_no_sink
     return [fast(i0, v0, drive.release.current, lp.v_on, s.source_resistance,
-                 s.capacitance, lp.r_off, lp.inductance, lp.diode(drive)) for v0 in starts]
+                 s.capacitance, lp.r_off, coil, lp.diode(drive), *eddy.values()) for v0 in starts]
 
 
 def release_time(drive: Drive, res, peak_time) -> np.ndarray:

@@ -38,14 +38,14 @@ def through_clamp(drive: Drive) -> bool:
 def bus_at(drive: Drive, lp, inductance):
     """The drooping bus of the peak at the points of the loop ``lp`` (:func:`coildrive.model.supply.bus`);
     with an eddy term (an :class:`~coildrive.model.eddy.EddyCoil`) its magnetising branch
-    and eddy resistance; a saturating coil's (a :class:`~coildrive.model.flux.FluxCoil`)
-    is :func:`coildrive.model.flux_bus.bus`."""
+    and eddy resistance; a saturating coil's (a :class:`~coildrive.model.flux.FluxCoil`,
+    or an eddy term's magnetising branch that is one) is :func:`coildrive.model.flux_bus.bus`."""
     s = drive.supply
-    if isinstance(inductance, FluxCoil):
-        return flux_bus.bus(lp.v_on, s.source_resistance, s.capacitance, lp.r_on, inductance)
     r_e = None
     if isinstance(inductance, EddyCoil):
         inductance, r_e = inductance.magnetising, inductance.resistance
+    if isinstance(inductance, FluxCoil):
+        return flux_bus.bus(lp.v_on, s.source_resistance, s.capacitance, lp.r_on, inductance, r_e)
     return bus_model.bus(lp.v_on, s.source_resistance, s.capacitance, lp.r_on, inductance, r_e)
 
 
@@ -192,8 +192,7 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
     if clamp and not s.boosted:     # (after a boost, handover_bus takes the floor itself)
         if res.armature is None:
             i_end, v_end = model.state(peak, b)
-            if model is bus_model:
-                i_end = bus_model.terminal(i_end, v_end, b)
+            i_end = bus_model.terminal(i_end, v_end, b)
         i_top = np.maximum(i_end, top)
         floor = bus_model.bus_floor(lp.v_on, s.source_resistance, i_top)
         later = floor < v_low

@@ -44,16 +44,21 @@ current charges ``C`` alone: the series RLC circuit of
 i``), exact, the current falling monotonically to zero and the bus rising with it until
 then; the bus stays there (nothing takes it back). See :func:`decay_no_sink`.
 
+With an eddy-current term (:func:`eddy_decay`, :func:`eddy_decay_no_sink`) the circuit is
+:mod:`coildrive.model.supply`'s eddy circuit with the bus mirrored, blocking where the
+terminal current reaches zero, the flux's tail through ``R_e`` after it.
+
 All functions broadcast over numpy arrays; units are A, V, ohm, H, F, s.
 """
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
 
-from . import linear2, rlc
+from . import linear2, rlc, supply
 
 #: Bisection steps for the drop-out and zero times: the bracket shrinks 2^-60.
 BISECTION_STEPS = 60
@@ -91,6 +96,29 @@ def _fed(i0, v0, v_s, r_s, c, r, l, v_d):
     return a, (l1, l2), y, i_ss, at
 
 
+def _fall(value, start, target, top):
+    """The time (s) ``value(t)`` (falling from ``start`` on ``[0, top]``) reaches
+    ``target``: bisection (0 where it starts at or below it)."""
+    lo_t, hi_t = np.zeros_like(top), top.copy()
+    for _ in range(BISECTION_STEPS):
+        mid = 0.5 * (lo_t + hi_t)
+        above = value(mid) > target
+        lo_t, hi_t = np.where(above, mid, lo_t), np.where(above, hi_t, mid)
+    return np.where(start > target, hi_t, 0.0)
+
+
+def _grow(value, hi, step):
+    """``hi`` doubled (from ``step`` s where it is not finite) until ``value`` has fallen to
+    zero there."""
+    hi = np.where(np.isfinite(hi), hi, step)
+    for _ in range(100):
+        short = value(hi) > 0.0
+        if not short.any():
+            break
+        hi = np.where(short, 2.0 * hi, hi)
+    return hi
+
+
 def decay(i0, v0, i_drop, v_s, r_s, c, r, l, v_d) -> FastDecay:
     """The circuit of the module docstring from ``i0`` A and the bus at ``v0`` V (at or
     below the source's ``v_s`` V); ``i_drop`` A the drop-out current."""
@@ -107,23 +135,10 @@ def decay(i0, v0, i_drop, v_s, r_s, c, r, l, v_d) -> FastDecay:
                     linear2.first_zero(z[0], zz[0], l1, l2))
     # a bus down at -2 V_d (the bridge's own body diodes clamp it there) leaves no bound:
     # grow a bracket from L/R until the current has crossed zero
-    hi = np.where(np.isfinite(hi), hi, l / r)
-    for _ in range(100):
-        short = at(hi)[0] > 0.0
-        if not short.any():
-            break
-        hi = np.where(short, 2.0 * hi, hi)
+    hi = _grow(lambda t: at(t)[0], hi, l / r)
 
-    def crossing(target, top):
-        lo_t, hi_t = np.zeros_like(top), top.copy()
-        for _ in range(BISECTION_STEPS):
-            mid = 0.5 * (lo_t + hi_t)
-            above = at(mid)[0] > target
-            lo_t, hi_t = np.where(above, mid, lo_t), np.where(above, hi_t, mid)
-        return np.where(i0 > target, hi_t, 0.0)
-
-    t_zero = crossing(0.0, hi)
-    t_drop = crossing(i_drop, t_zero)
+    t_zero = _fall(lambda t: at(t)[0], i0, 0.0, hi)
+    t_drop = _fall(lambda t: at(t)[0], i0, i_drop, t_zero)
     t_top = np.minimum(linear2.first_zero(z[1], zz[1], l1, l2), t_zero)
     v_top = at(t_top)[1]
     bus_max = np.maximum(v_top, v_s)
@@ -132,6 +147,97 @@ def decay(i0, v0, i_drop, v_s, r_s, c, r, l, v_d) -> FastDecay:
     det = a[0] * a[3] - a[1] * a[2]
     charge = i_ss * t_zero + (a[3] * (i_z - i0) - a[1] * (v_z - v0)) / det
     return FastDecay(t_drop, t_zero, v_top, bus_max, np.where(v_top > v_s, t_top, np.inf), v_z, charge)
+
+
+def eddy_decay(i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e) -> FastDecay:
+    """:func:`decay` with an eddy resistance ``r_e`` ohm across the magnetising branch ``l``
+    H (:mod:`coildrive.model.eddy`; ``i0`` and ``i_drop`` magnetising currents). With ``u =
+    -(v + 2 V_d)`` the circuit is the peak's of :mod:`coildrive.model.supply` with the
+    eddy term and the source ``-(V_s + 2 V_d)``, from ``(i0, u0)``: ``L di_m/dt = k (u - R
+    i_m)``, ``C du/dt = (u_s - u)/R_s - k (i_m + u/R_e)``, ``k = R_e/(R + R_e)``, closed form
+    (:func:`coildrive.model.supply.state_from`). The body diodes carry the terminal current
+    ``k (i_m + u/R_e)`` and block at its first zero: it falls from the turn-off (``i_m``
+    falls, the bus rises) to its first turn (the first zero of its rate, closed form,
+    :func:`coildrive.model.linear2.first_zero`), and ``i_m`` reaches zero no later than
+    ``L/(k R) ln(1 + R i0/(min(v0, V_s) + 2 V_d))`` (the bus staying above ``min(v0, V_s)``)
+    with the terminal current's zero before it, so the zero is a bisection on ``[0, the
+    earlier of the two]`` (0 where the turn-off's step already takes it there). The zero
+    time, the bus then, the highest bus (:func:`coildrive.model.supply.lowest_from` of
+    ``u``, exact) and the charge (the terminal current's, exact) end there; the flux then
+    dies through ``R_e`` alone, ``i_m = i_z e^{-t R_e/L}``, so a drop-out current below
+    the block current ``i_z`` is reached ``(L/R_e) ln(i_z/i_drop)`` later."""
+    i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e = np.broadcast_arrays(
+        *(np.asarray(x, float) for x in (i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e)))
+    b = supply.bus(-(v_s + 2.0 * v_d), r_s, c, r, l, r_e)
+    return _eddy_run(b, i0, v0, i_drop, v_s, v_d, r_e)[0]
+
+
+def _eddy_run(b, i0, v0, i_drop, v_s, v_d, r_e):
+    """:func:`eddy_decay` on the circuit ``b`` (a :class:`coildrive.model.supply.Bus` in
+    ``u``: the source's, or with no source the capacitor alone) from ``i0`` A and the bus
+    at ``v0`` V: ``(FastDecay, at)`` with ``at(t) -> (i_m A, u V)``."""
+    l, r = b.l, b.r
+    u0 = -(v0 + 2.0 * v_d)
+    k = r_e / (r + r_e)
+
+    def at(t):
+        return supply.state_from(t, b, i0, u0)
+
+    def flow(t):
+        return supply.terminal(*at(t), b)
+
+    a = b.matrix
+    ad = linear2.times(a, (i0 - b.i_ss, u0 - b.v_ss))
+    aad = linear2.times(a, ad)
+    turn = linear2.first_zero(k * (ad[0] + ad[1] / r_e), k * (aad[0] + aad[1] / r_e), b.l1, b.l2)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        bound = l / (k * r) * np.log1p(r * i0 / (np.minimum(v0, v_s) + 2.0 * v_d))
+    hi = np.minimum(np.where(np.isfinite(bound) & (bound > 0), bound, np.inf), turn)
+    hi = _grow(flow, hi, l / (k * r))
+    t_zero = _fall(flow, flow(np.zeros_like(i0)), 0.0, hi)
+    i_z, u_z = at(t_zero)
+    late = i_drop < i_z
+    with np.errstate(divide="ignore", invalid="ignore"):
+        tail = l / r_e * np.log(np.where(late, i_z / i_drop, 1.0))
+    t_drop = np.where(late, t_zero + tail, _fall(lambda t: at(t)[0], i0, i_drop, t_zero))
+    u_low, t_low = supply.lowest_from(t_zero, b, i0, u0)
+    v_top = -u_low - 2.0 * v_d
+    charge = supply.integrals_from(t_zero, b, i0, u0)[0]
+    return FastDecay(t_drop, t_zero, v_top, np.maximum(v_top, v_s), np.where(v_top > v_s, t_low, np.inf),
+                     -u_z - 2.0 * v_d, charge), at
+
+
+def eddy_decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e) -> FastDecay:
+    """:func:`eddy_decay` on a supply that cannot sink (as :func:`decay_no_sink`): with the
+    source until the bus reaches ``v_s`` V (it rises monotonically to its first maximum: a
+    bisection there), then the capacitor alone, the same closed form with no source
+    (``R_s -> inf``: ``A = [[-k R/L, k/L], [-k/C, -k/(R_e C)]]``, steady state 0), until
+    the terminal current's zero; the bus rises to it and stays there, the flux's tail
+    through ``R_e`` after it."""
+    i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e = np.broadcast_arrays(
+        *(np.asarray(x, float) for x in (i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e)))
+    b_fed = supply.bus(-(v_s + 2.0 * v_d), r_s, c, r, l, r_e)
+    fed, at = _eddy_run(b_fed, i0, np.minimum(v0, v_s), i_drop, v_s, v_d, r_e)
+    reach = (fed.bus_top > v_s) & (v0 < v_s)
+    # the bus's shortfall below v_s falls to zero on its rise to its first maximum
+    t_reach = _fall(lambda t: v_s + 2.0 * v_d + at(t)[1], v_s - v0, 0.0, np.where(reach, fed.bus_max_time, 0.0))
+    blocked = reach | (v0 >= v_s)
+    t_a = np.where(v0 >= v_s, 0.0, np.where(reach, t_reach, fed.zero_time))
+    i_a = np.where(v0 >= v_s, i0, np.where(reach, at(t_a)[0], 0.0))
+    v_a = np.where(blocked, np.maximum(v0, v_s), fed.bus_at_zero)
+    u0 = -(np.minimum(v0, v_s) + 2.0 * v_d)
+    q_a = np.where(v0 >= v_s, 0.0, np.where(reach, supply.integrals_from(t_a, b_fed, i0, u0)[0], fed.charge))
+    with np.errstate(invalid="ignore"):       # (its v_ss: 0 - inf x 0)
+        none = dataclasses.replace(supply.bus(np.zeros_like(v_s), np.full_like(v_s, np.inf), c, r, l, r_e),
+                                   v_ss=np.zeros_like(v_s))
+    alone, _ = _eddy_run(none, np.where(blocked, i_a, i0), np.where(blocked, v_a, v_s), i_drop, v_s, v_d, r_e)
+    v_end = np.where(blocked, alone.bus_at_zero, fed.bus_at_zero)
+    t_drop = np.where(~blocked | (i_a <= i_drop), fed.drop_time, t_a + alone.drop_time)
+    t_zero = np.where(blocked, t_a + alone.zero_time, fed.zero_time)
+    bus_top = np.where(blocked, v_end, fed.bus_top)
+    when = np.where(blocked, t_zero, fed.bus_max_time)
+    return FastDecay(t_drop, t_zero, bus_top, np.maximum(bus_top, v_s), np.where(bus_top > v_s, when, np.inf),
+                     v_end, q_a + np.where(blocked, c * (v_end - v_a), 0.0))
 
 
 def decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, l, v_d) -> FastDecay:

@@ -11,8 +11,9 @@ after a time is read back from the table. The terminal current steps at every sw
 edge, so each edge has two samples at the same time (before and after). The release is
 drawn until the magnetising current has fallen to 1 % of where it started. On a drooping
 bus (``supply.source_resistance``) the peak is :mod:`coildrive.model.supply`'s closed form
-(its magnetising and terminal currents), from a boost :mod:`coildrive.model.boost`'s; the hold that follows sees the stiff supply, as
-:func:`coildrive.model.waveform.peak_samples` has it.
+(its magnetising and terminal currents; a curve's, :mod:`coildrive.model.flux_bus`'s
+run), from a boost :mod:`coildrive.model.boost`'s; the hold that follows sees the stiff
+supply, as :func:`coildrive.model.waveform.peak_samples` has it.
 """
 
 from __future__ import annotations
@@ -24,8 +25,10 @@ import numpy as np
 from ..config import Drive
 from . import boost as boost_model
 from . import eddy
+from . import flux_bus
 from . import supply as bus_model
 from .circuit import Loop
+from .flux import FluxCoil
 from .flux_waveform import period_starts, stitch_periods
 
 #: Currents tabulated per segment kind.
@@ -168,8 +171,8 @@ def _peak(drive: Drive, lp: Loop, peak_time: float, big: int):
     """The operating point's tables and the peak's ``big`` + 1 samples from zero flux:
     ``(point, magnetising current at the peak's end A, [time], [terminal], [magnetising],
     [switch_on])``; on a drooping bus (``supply.source_resistance``) the peak's closed
-    form of :mod:`coildrive.model.supply`, from a boost (``supply.boost``, at its nominal)
-    :mod:`coildrive.model.boost`'s."""
+    form of :mod:`coildrive.model.supply` (a curve: :mod:`coildrive.model.flux_bus`'s
+    run), from a boost (``supply.boost``, at its nominal) :mod:`coildrive.model.boost`'s."""
     e = lp.inductance[...]
     v, r_on = (float(np.ravel(x)[0]) for x in (lp.v_on, lp.r_on))
     tp = np.linspace(0.0, peak_time, big + 1)
@@ -182,9 +185,14 @@ def _peak(drive: Drive, lp: Loop, peak_time: float, big: int):
         return _Point(lp, peak_end), peak_end, [tp], [boost_model.terminal(mp, vp, b)], [mp], [np.ones_like(tp)]
     if drive.supply.droops:
         s = drive.supply
-        b = bus_model.bus(v, s.source_resistance, s.capacitance, r_on,
-                          float(np.ravel(e.magnetising)[0]), float(np.ravel(e.resistance)[0]))
-        mp, vp = bus_model.state(tp, b)
+        mag, r_e = e.magnetising, float(np.ravel(e.resistance)[0])
+        if isinstance(mag, FluxCoil):   # a curve: the stepped run of model/flux_bus.py
+            b = flux_bus.bus(v, s.source_resistance, s.capacitance, r_on,
+                             mag.with_scale(float(np.ravel(mag.scale)[0])), r_e)
+            mp, vp = flux_bus.state(tp, b)
+        else:
+            b = bus_model.bus(v, s.source_resistance, s.capacitance, r_on, float(np.ravel(mag)[0]), r_e)
+            mp, vp = bus_model.state(tp, b)
         peak_end = float(mp[-1])
         return _Point(lp, peak_end), peak_end, [tp], [bus_model.terminal(mp, vp, b)], [mp], [np.ones_like(tp)]
     peak_end = float(np.ravel(eddy.rise_current(peak_time, 0.0, v, r_on, e))[0])

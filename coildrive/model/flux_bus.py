@@ -39,6 +39,28 @@ How it is stepped, and why:
 
 The current is the coil current (the step response of this passive circuit rises to its
 first maximum; the record holds the whole horizon, so a later crossing is found too).
+
+With an eddy-current term (a resistance ``R_e`` across the magnetising branch,
+:mod:`coildrive.model.eddy`; ``g_e = 1/R_e``) the state is the magnetising current ``i_m``
+and the bus, as in :mod:`coildrive.model.supply`: the branch sees the loop's Thevenin
+pair and the bus feeds the terminal current ``k (i_m + g_e v)``, ``k = R_e/(R + R_e)``::
+
+    L_d(i_m) di_m/dt = k (v - R i_m)
+    C dv/dt          = (V_s - v)/R_s - k (i_m + g_e v)        i_m(0) = 0, v(0) = V_s
+
+With ``a = 1 + k g_e R_s`` this is, term for term, the plain circuit above with the
+source ``V_s/a``, its resistance ``k R_s/a``, the capacitor ``C/k`` and the curve scaled
+by ``1/k`` (divide the first line by ``k``; the second is ``(C/k) dv/dt = (V_s/a - v)/(k
+R_s/a) - i_m``), the same loop ``R`` and the same bus ``v``; only the start differs: the
+capacitor holds ``V_s``, above that circuit's source ``V_s/a`` (the terminal current's
+switch-on step ``V_s/(R + R_e)`` draws it down at once through ``R_s C/a``). So the same
+stepper runs it, from ``w(0) = V_s - V_s/a`` (:func:`bus`), with a first stretch of
+:data:`SETTLE_STEPS` steps over that transient (:func:`_phases`, as
+:mod:`coildrive.model.flux_bus_decay` starts off the slaved bus too). The steady current
+is the same ``V_s/(R + R_s)`` (the branch is a short at DC), and ``R_e -> inf`` (``k = a =
+1``) is the plain circuit. The record's current is then the magnetising current
+(:func:`terminal` the coil's).
+
 All functions broadcast over numpy arrays; units are A, V, ohm, H, Wb, F, s.
 """
 
@@ -49,6 +71,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .flux import FluxCoil
+# the coil's terminal current k (i_m + g_e v) from a bus's g_e and r: the same for this one
+from .supply import terminal  # noqa: F401
 
 #: Least number of time steps after the rise.
 STEPS = 300
@@ -65,6 +89,10 @@ PER_TIME_CONSTANT = 10
 HORIZON = 25.0
 #: A step is split at most this many times (at most this many table points crossed).
 SPLITS = 6
+#: With an eddy term, the first stretch: :data:`SETTLE_STEPS` steps over ``SETTLE`` times
+#: the bus's own ``R_s C / a`` (at most a tenth of the rise; module docstring).
+SETTLE = 25.0
+SETTLE_STEPS = 60
 
 
 def _phi(z):
@@ -111,7 +139,10 @@ class Record:
 class FluxBus:
     """The circuit of the module docstring at each point (arrays broadcast together) with
     a saturating ``coil`` (:class:`~coildrive.model.flux.FluxCoil`, one scale per point);
-    ``i_ss`` A the steady current ``V_s/(R + R_s)``. The run is made on first use."""
+    ``i_ss`` A the steady current ``V_s/(R + R_s)``. The run is made on first use. With an
+    eddy term (:func:`bus`) ``v_s``, ``r_s``, ``c`` and ``coil`` are the equivalent plain
+    circuit's (module docstring), ``g_e`` S the eddy conductance (0: none) and ``v0`` V the
+    bus at switch-on (``None``: ``v_s``, the capacitor charged to the source)."""
 
     v_s: np.ndarray
     r_s: np.ndarray
@@ -120,6 +151,8 @@ class FluxBus:
     coil: FluxCoil
     i_ss: np.ndarray
     _run: list = field(default_factory=list, repr=False)
+    g_e: np.ndarray | float = 0.0
+    v0: np.ndarray | None = None
 
     def record(self, t_need=None, i_need=None) -> Record:
         """The run: its rise (the first of :func:`_phases`), continued over the rest of the
@@ -127,7 +160,7 @@ class FluxBus:
         ``i_need`` A in it."""
         if not self._run:
             phases = _phases(self)
-            self._run.extend([run(self, phases[:1]), phases[1:]])
+            self._run.extend([run(self, phases[:-1]), phases[-1:]])
         rec, rest = self._run
         short = False
         if rest and t_need is not None:
@@ -151,19 +184,44 @@ _CACHE: dict = {}
 CACHE_SIZE = 8
 
 
-def bus(v_s, r_s, c, r, coil: FluxCoil) -> FluxBus:
-    """The circuit of the module docstring at each point (``r_s`` > 0, ``c`` > 0); the same
-    points and curve give the same object back (its run made once)."""
-    v_s, r_s, c, r, scale = np.broadcast_arrays(*(np.asarray(x, float) for x in (v_s, r_s, c, r, coil.scale)))
-    key = (id(coil.curve), v_s.shape, *(x.tobytes() for x in (v_s, r_s, c, r, scale)))
+def bus(v_s, r_s, c, r, coil: FluxCoil, r_e=None) -> FluxBus:
+    """The circuit of the module docstring at each point (``r_s`` > 0, ``c`` > 0), with an
+    eddy resistance ``r_e`` ohm across the magnetising branch (``None``: none) as its
+    equivalent plain circuit; the same points and curve give the same object back (its
+    run made once)."""
+    g_e = 0.0 if r_e is None else 1.0 / np.asarray(r_e, float)
+    v_s, r_s, c, r, scale, g_e = np.broadcast_arrays(*(np.asarray(x, float)
+                                                       for x in (v_s, r_s, c, r, coil.scale, g_e)))
+    key = (id(coil.curve), v_s.shape, *(x.tobytes() for x in (v_s, r_s, c, r, scale, g_e)))
     hit = _CACHE.get(key)
     if hit is not None and hit.coil.curve is coil.curve:
         return hit
-    fb = FluxBus(v_s.copy(), r_s.copy(), c.copy(), r.copy(), coil.with_scale(scale.copy()), v_s / (r + r_s))
+    fb = equivalent(v_s, r_s, c, r, coil.with_scale(scale.copy()),
+                    None if r_e is None else np.broadcast_to(np.asarray(r_e, float), v_s.shape))
     if len(_CACHE) >= CACHE_SIZE:
         _CACHE.pop(next(iter(_CACHE)))
     _CACHE[key] = fb
     return fb
+
+
+def equivalent(v_s, r_s, c, r, coil: FluxCoil, r_e=None) -> FluxBus:
+    """The circuit of the module docstring (arrays of one shape, ``coil``'s scale too), not
+    cached: with an eddy resistance ``r_e`` ohm its equivalent plain circuit (source
+    ``V_s/a``, ``k R_s/a``, ``C/k``, the curve scaled by ``1/k``), the bus starting at
+    ``v_s``. With an eddy term ``r_s`` may be ``inf`` (no source: the capacitor alone feeds
+    the coil, or takes its current back): the limit, source 0 V behind ``R_e``."""
+    v_s, r_s, c, r = (np.array(x, float) for x in (v_s, r_s, c, r))
+    if r_e is None:
+        return FluxBus(v_s, r_s, c, r, coil, v_s / (r + r_s))
+    g_e = 1.0 / np.asarray(r_e, float)
+    k = 1.0 / (1.0 + r * g_e)           # R_e/(R + R_e)
+    a = 1.0 + k * g_e * r_s
+    none = np.isinf(r_s)
+    with np.errstate(invalid="ignore"):
+        v_eq = np.where(none, 0.0, v_s / a)
+        r_eq = np.where(none, 1.0 / g_e, k * r_s / a)
+    return FluxBus(v_eq, r_eq, c / k, r, coil.with_scale(np.asarray(coil.scale, float) / k),
+                   np.where(none, 0.0, v_s / (r + r_s)), g_e=g_e, v0=v_s)
 
 
 def _phases(fb: FluxBus) -> list[tuple[int, np.ndarray]]:
@@ -175,7 +233,9 @@ def _phases(fb: FluxBus) -> list[tuple[int, np.ndarray]]:
     constants; the last twentieth closes at the incremental inductance there and the bus
     settles through ``R_s C``: 25 of each of those more. The second stretch's steps take
     :data:`PER_TIME_CONSTANT` per fastest coil time constant and per LC ringing period
-    (at the smallest incremental inductance), at least :data:`STEPS`."""
+    (at the smallest incremental inductance), at least :data:`STEPS`. A bus that starts off
+    the slaved one (an eddy term's, ``v0``) first takes :data:`SETTLE_STEPS` over
+    :data:`SETTLE` ``R_s C`` (at most a tenth of the rise), then the rest of the rise."""
     cv = fb.coil.curve
     s = fb.coil.scale
     i_ss = fb.i_ss
@@ -189,7 +249,11 @@ def _phases(fb: FluxBus) -> list[tuple[int, np.ndarray]]:
     l_min = ld.min(axis=0)
     h = np.minimum(l_min / g, 2.0 * np.pi * np.sqrt(l_min * fb.c)) / PER_TIME_CONSTANT
     steps = int(np.clip(np.max(np.ceil((horizon - rise) / h)), STEPS, MAX_STEPS))
-    return [(RISE_STEPS, rise / RISE_STEPS), (steps, (horizon - rise) / steps)]
+    tail = (steps, (horizon - rise) / steps)
+    if fb.v0 is None:
+        return [(RISE_STEPS, rise / RISE_STEPS), tail]
+    settle = np.minimum(SETTLE * fb.r_s * fb.c, 0.1 * rise)
+    return [(SETTLE_STEPS, settle / SETTLE_STEPS), (RISE_STEPS, (rise - settle) / RISE_STEPS), tail]
 
 
 def run(fb: FluxBus, phases=None, start: Record | None = None) -> Record:
@@ -242,7 +306,8 @@ def run(fb: FluxBus, phases=None, start: Record | None = None) -> Record:
         return t, i, v_s - r_s * i + w, n0[0], lam * w
 
     if start is None:
-        t, i, w, k = np.zeros_like(v_s), np.zeros_like(v_s), np.zeros_like(v_s), np.zeros(v_s.shape, int)
+        t, i, k = np.zeros_like(v_s), np.zeros_like(v_s), np.zeros(v_s.shape, int)
+        w = np.zeros_like(v_s) if fb.v0 is None else fb.v0 - v_s
     else:
         t, i, k = start.t[-1], start.i[-1], start.k
         w = start.v[-1] - v_s + r_s * i
@@ -367,8 +432,10 @@ def state(t, fb: FluxBus) -> tuple[np.ndarray, np.ndarray]:
 
 
 def current(t, fb: FluxBus) -> np.ndarray:
-    """Coil current (A) at ``t`` s after switch-on."""
+    """Coil current (A) at ``t`` s after switch-on (with an eddy term the magnetising
+    current)."""
     return state(t, fb)[0]
+
 
 
 def lowest_bus(t_end, fb: FluxBus) -> tuple[np.ndarray, np.ndarray]:

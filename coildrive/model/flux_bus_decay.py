@@ -25,6 +25,24 @@ it), so ``|dpsi/dt| >= min(v0, V_s) + 2 V_d + R i`` and the flux is gone by ``ps
 constants ``psi(i0)/(R i0)``. Every run is continued in further stretches of the same
 steps until each point's current has crossed zero.
 
+With an eddy-current term (a resistance ``R_e`` across the magnetising branch,
+:mod:`coildrive.model.eddy`) the branch sees the loop's Thevenin pair and the diodes carry
+the terminal current ``k (i_m + u/R_e)``, ``k = R_e/(R + R_e)``::
+
+    L_d(i_m) di_m/dt = k (u - R i_m)
+    C du/dt          = (V_s' - u)/R_s - k (i_m + u/R_e)
+
+-- the peak's circuit with an eddy term of :mod:`coildrive.model.flux_bus`, run on its
+equivalent plain circuit from ``(i0, u0)`` (``i0`` the magnetising current). The diodes
+block where the terminal current reaches zero, at ``i_m = (v + 2 V_d)/R_e`` (its first
+zero, by the same Hermite reading; at once where the turn-off's step already takes it
+there): the zero time, the bus then, the highest bus and the charge (``int i dt`` of the
+terminal current) end there. The flux then dies through ``R_e`` alone (``dpsi/dt = -R_e
+i_m``, the curve's exact quadrature :func:`coildrive.model.flux.time`), so a drop-out
+current below the block current is reached that much later; the bus, cut off from the
+coil, relaxes to ``V_s`` (never above the highest it reached). The run stops once every
+point's terminal current has crossed zero. A supply that cannot sink: :func:`decay_no_sink`.
+
 All functions broadcast over numpy arrays; units are A, V, ohm, H, Wb, F, s.
 """
 
@@ -34,10 +52,11 @@ import dataclasses
 
 import numpy as np
 
-from . import flux_bus
+from . import flux, flux_bus
 from .bridge import flux_pump_up
 from .bus_decay import FastDecay
 from .flux import FluxCoil
+from .supply import terminal
 
 #: Steps over the bound on the first zero (module docstring).
 STEPS = 100
@@ -50,11 +69,13 @@ PER_TIME_CONSTANT = 10
 EXTENSIONS = 8
 
 
-def _record(i0, v0, v_s, r_s, c, r, coil: FluxCoil, v_d):
+def _record(i0, v0, v_s, r_s, c, r, coil: FluxCoil, v_d, r_e=None):
     """The run of the module docstring (in ``u``) from ``(i0, v0)`` until every point's
-    current has crossed zero: ``(FluxBus, Record)``."""
-    u_s = -(v_s + 2.0 * v_d)
-    fb = flux_bus.FluxBus(u_s, r_s, c, r, coil, u_s / (r + r_s))
+    (terminal) current has crossed zero: ``(FluxBus, Record)``; with an eddy resistance
+    ``r_e`` ohm on the equivalent plain circuit (:func:`coildrive.model.flux_bus.equivalent`)."""
+    fb = flux_bus.equivalent(-(v_s + 2.0 * v_d), r_s, c, r, coil, r_e)
+    alone = np.isinf(r_s)
+    u_s, r_s, c, coil = fb.v_s, fb.r_s, fb.c, fb.coil       # the equivalent's (the same without R_e)
     cv, s = coil.curve, coil.scale
     k0 = np.clip(np.searchsorted(cv.current, i0, side="right") - 1, 0, cv.base.size - 1)
     u0 = -(v0 + 2.0 * v_d)
@@ -64,7 +85,10 @@ def _record(i0, v0, v_s, r_s, c, r, coil: FluxCoil, v_d):
     psi0 = s * cv.psi(i0)
     grid = np.linspace(0.0, 1.0, 33).reshape((-1,) + (1,) * i0.ndim) * i0
     l_min = np.maximum((s * cv.incremental(grid)).min(axis=0), 1e-300)
-    g = r + r_s
+    # the explicit part's stiffness, (R + R_s)/L_d; the capacitor alone (an eddy term's R_e
+    # as the equivalent's R_s, its R_s C/k far slower than the coil) keeps w - R_s i through
+    # the steps (the stages of both move together), so its own R/L_d and the ringing set the step
+    g = np.where(alone, r, r + r_s)
     lo = np.minimum(v0, v_s) + 2.0 * v_d
     with np.errstate(divide="ignore", invalid="ignore"):
         bound = np.where(lo > 0, psi0 / lo, psi0 / np.maximum(r * i0, 1e-300) * 5.0)
@@ -78,25 +102,38 @@ def _record(i0, v0, v_s, r_s, c, r, coil: FluxCoil, v_d):
     t1 = np.minimum(SETTLE * r_s * c, 0.1 * bound)
     rec = flux_bus.run(fb, [(SETTLE_STEPS, t1 / SETTLE_STEPS), (n, h)], start)
     for _ in range(EXTENSIONS):
-        if not np.any(np.min(rec.i, axis=0) > 0.0):
+        if not np.any(np.min(terminal(rec.i, rec.v, fb), axis=0) > 0.0):
             break
         rec = flux_bus.run(fb, [(n, h)], rec)
-    if np.any(np.min(rec.i, axis=0) > 0.0):
+    if np.any(np.min(terminal(rec.i, rec.v, fb), axis=0) > 0.0):
         raise ArithmeticError("the fast decay's current did not reach zero")
     return fb.with_record(rec), rec
 
 
-def _fall(rec, target):
-    """Time (s) the current first falls to ``target`` A (per point; 0 where it starts at or
-    below it): the cubic Hermite interpolant of the first step that reaches it."""
-    t, _ = flux_bus.first_crossing(*flux_bus.segments(rec)[:6], target, rising=False)
-    return np.where(rec.i[0] <= target, 0.0, t)
+def _terminal_segments(rec, fb):
+    """:func:`coildrive.model.flux_bus.segments`' first six rows of the terminal current
+    ``k (i_m + g_e u)`` (a fixed combination of the two recorded cubics: itself a Hermite
+    cubic); the current itself without an eddy term."""
+    t0, h, i0, i1, di0, di1, u0, u1, du0, du1 = flux_bus.segments(rec)
+    k = 1.0 / (1.0 + fb.r * fb.g_e)
+    return (t0, h, terminal(i0, u0, fb), terminal(i1, u1, fb), k * (di0 + fb.g_e * du0),
+            k * (di1 + fb.g_e * du1))
 
 
-def _charge(rec, t_end):
-    """``int_0^t_end i dt`` (C, per point): each step's Hermite cubic integrated exactly
-    (``h ((y0 + y1)/2 + (d0 - d1)/12)``), the step holding ``t_end`` up to it."""
-    t0, h, y0, y1, d0, d1 = flux_bus.segments(rec)[:6]
+def _fall(seg, target):
+    """Time (s) a recorded quantity first falls to ``target`` (per point; 0 where it starts
+    at or below it): the cubic Hermite interpolant of the first step that reaches it
+    (``seg``: :func:`coildrive.model.flux_bus.segments`' first six rows, or
+    :func:`_terminal_segments`)."""
+    t, _ = flux_bus.first_crossing(*seg, target, rising=False)
+    return np.where(seg[2][0] <= target, 0.0, t)
+
+
+def _charge(seg, t_end):
+    """``int_0^t_end y dt`` (per point) of a recorded quantity (``seg`` as :func:`_fall`'s):
+    each step's Hermite cubic integrated exactly (``h ((y0 + y1)/2 + (d0 - d1)/12)``), the
+    step holding ``t_end`` up to it."""
+    t0, h, y0, y1, d0, d1 = seg
     full = (t0 + h <= t_end) & (h > 0)
     whole = np.sum(np.where(full, h * (0.5 * (y0 + y1) + (d0 - d1) / 12.0), 0.0), axis=0)
     inside = (t0 < t_end) & (t0 + h > t_end)
@@ -110,20 +147,24 @@ def _charge(rec, t_end):
     return whole + np.sum(np.where(inside, part, 0.0), axis=0)
 
 
-def decay(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d) -> FastDecay:
+def decay(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d, r_e=None) -> FastDecay:
     """:func:`coildrive.model.bus_decay.decay` with the flux-linkage curve ``coil`` (its
     scale broadcast with the points): the fast decay of ``i0`` A from the bus at ``v0`` V
-    (at or below ``v_s`` V), ``i_drop`` A the drop-out current."""
-    shape, args = _points(i0, v0, i_drop, v_s, r_s, c, r, coil, v_d)
+    (at or below ``v_s`` V), ``i_drop`` A the drop-out current; with an eddy resistance
+    ``r_e`` ohm across the curve (module docstring) ``i0`` and ``i_drop`` are magnetising
+    currents and the zero time and the charge the terminal current's."""
+    shape, args = _points(i0, v0, i_drop, v_s, r_s, c, r, coil, v_d, r_e)
     return _shaped(_decay(*args)[0], shape)
 
 
-def _points(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d):
+def _points(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d, r_e=None):
     """``(shape, arguments)``: the arguments broadcast together (the coil's scale too) to
     ``shape`` and flattened (the run's record has one column per point)."""
-    full = np.broadcast_arrays(*(np.asarray(x, float) for x in (i0, v0, i_drop, v_s, r_s, c, r, v_d, coil.scale)))
-    i0, v0, i_drop, v_s, r_s, c, r, v_d, scale = (x.ravel().copy() for x in full)
-    return full[0].shape, (i0, v0, i_drop, v_s, r_s, c, r, coil.with_scale(scale), v_d)
+    full = np.broadcast_arrays(*(np.asarray(x, float) for x in (i0, v0, i_drop, v_s, r_s, c, r, v_d, coil.scale,
+                                                                 np.inf if r_e is None else r_e)))
+    i0, v0, i_drop, v_s, r_s, c, r, v_d, scale, r_e_ = (x.ravel().copy() for x in full)
+    return full[0].shape, (i0, v0, i_drop, v_s, r_s, c, r, coil.with_scale(scale), v_d,
+                           None if r_e is None else r_e_)
 
 
 def _shaped(d: FastDecay, shape) -> FastDecay:
@@ -131,28 +172,40 @@ def _shaped(d: FastDecay, shape) -> FastDecay:
     return FastDecay(*(np.reshape(getattr(d, f.name), shape) for f in dataclasses.fields(d)))
 
 
-def _decay(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d):
-    """:func:`decay` on broadcast points: ``(FastDecay, its Record)``."""
-    fb, rec = _record(i0, v0, v_s, r_s, c, r, coil, v_d)
-    t_zero = _fall(rec, 0.0)
-    t_drop = np.minimum(_fall(rec, i_drop), t_zero)
+def _decay(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d, r_e=None):
+    """:func:`decay` on broadcast points: ``(FastDecay, its Record, the circuit)`` (with an
+    eddy term ``r_s`` may be ``inf``: the capacitor alone, the feed blocked)."""
+    fb, rec = _record(i0, v0, v_s, r_s, c, r, coil, v_d, r_e)
+    seg, flow = flux_bus.segments(rec)[:6], _terminal_segments(rec, fb)
+    t_zero = _fall(flow, 0.0)
+    t_drop = np.minimum(_fall(seg, i_drop), t_zero)
+    i_z, u_z = flux_bus.state(t_zero, fb)
+    if r_e is not None:   # below the block current the flux dies through R_e alone
+        late = i_drop < i_z
+        t_tail = flux.time(coil, np.where(late, i_z, 1.0), np.where(late, i_drop, 1.0), 0.0, r_e)
+        t_drop = np.where(late, t_zero + t_tail, t_drop)
     u_low, t_low = flux_bus.lowest_bus(t_zero, fb)          # the lowest u is the highest bus
     v_top = -u_low - 2.0 * v_d
-    v_z = -flux_bus.state(t_zero, fb)[1] - 2.0 * v_d
+    v_z = -u_z - 2.0 * v_d
     return FastDecay(t_drop, t_zero, v_top, np.maximum(v_top, v_s), np.where(v_top > v_s, t_low, np.inf), v_z,
-                     _charge(rec, t_zero)), rec
+                     _charge(flow, t_zero)), rec, fb
 
 
-def decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d) -> FastDecay:
+def decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d, r_e=None) -> FastDecay:
     """:func:`decay` on a supply that cannot sink (an ideal one-way feed, as
     :func:`coildrive.model.bus_decay.decay_no_sink`): with the source until the bus reaches
     ``v_s`` V (the first crossing in the run), then into ``C`` alone, the saturating
     coil's series RLC circuit of :func:`coildrive.model.bridge.flux_pump_up` (stepped in
     the falling current) down to the drop-out current and to zero. ``bus_max`` is the bus
     when the current stops (or ``v_s``, which a bus that never got there relaxes back
-    to)."""
-    shape, (i0, v0, i_drop, v_s, r_s, c, r, coil, v_d) = _points(i0, v0, i_drop, v_s, r_s, c, r, coil, v_d)
-    fed, rec = _decay(i0, np.minimum(v0, v_s), i_drop, v_s, r_s, c, r, coil, v_d)
+    to). With an eddy resistance ``r_e`` ohm (module docstring; magnetising currents) the
+    capacitor alone is the same stepped circuit with no source (``R_s -> inf``,
+    :func:`coildrive.model.flux_bus.equivalent`) from the moment the bus reaches ``v_s``,
+    until the terminal current's zero (the bus rises to it and stays: nothing takes it
+    back), the flux's tail through ``R_e`` after it."""
+    shape, (i0, v0, i_drop, v_s, r_s, c, r, coil, v_d, r_e) = _points(i0, v0, i_drop, v_s, r_s, c, r, coil, v_d,
+                                                                        r_e)
+    fed, rec, fb = _decay(i0, np.minimum(v0, v_s), i_drop, v_s, r_s, c, r, coil, v_d, r_e)
     # the bus reaches v_s (u falls to -(v_s + 2 V_d)) before the current stops
     u_s = -(v_s + 2.0 * v_d)
     t0, h, _, _, _, _, u0, u1, du0, du1 = flux_bus.segments(rec)
@@ -160,12 +213,22 @@ def decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d) -> FastDe
     reach = found & (v0 < v_s)
     t_reach = np.where(reach, t_u, 0.0)
     blocked = reach | (v0 >= v_s)
-    fb = flux_bus.FluxBus(u_s, r_s, c, r, coil, u_s / (r + r_s)).with_record(rec)
     i_reach = flux_bus.state(t_reach, fb)[0]
     t_a = np.where(v0 >= v_s, 0.0, np.where(reach, t_reach, fed.zero_time))
     i_a = np.where(v0 >= v_s, i0, np.where(reach, i_reach, 0.0))
     v_a = np.where(blocked, np.maximum(v0, v_s), fed.bus_at_zero)
-    q_a = np.where(v0 >= v_s, 0.0, np.where(reach, _charge(rec, t_a), fed.charge))
+    q_a = np.where(v0 >= v_s, 0.0, np.where(reach, _charge(_terminal_segments(rec, fb), t_a), fed.charge))
+    if r_e is not None:   # the capacitor alone (the points that never reach v_s run it from i0, unused)
+        alone = _decay(np.where(blocked, i_a, i0), np.where(blocked, v_a, v_s), i_drop, v_s, np.full_like(v_s, np.inf),
+                       c, r, coil, v_d, r_e)[0]
+        v_end = np.where(blocked, alone.bus_at_zero, fed.bus_at_zero)
+        t_drop = np.where(~blocked | (i_a <= i_drop), fed.drop_time, t_a + alone.drop_time)
+        t_zero = np.where(blocked, t_a + alone.zero_time, fed.zero_time)
+        bus_top = np.where(blocked, v_end, fed.bus_top)
+        when = np.where(blocked, t_zero, fed.bus_max_time)
+        return _shaped(FastDecay(t_drop, t_zero, bus_top, np.maximum(bus_top, v_s),
+                                 np.where(bus_top > v_s, when, np.inf), v_end,
+                                 q_a + np.where(blocked, c * (v_end - v_a), 0.0)), shape)
     i_b = np.where(blocked, i_a, 0.0)
     full = flux_pump_up(i_b, v_a, c, r, coil, v_d)
     to_drop = flux_pump_up(i_b, v_a, c, r, coil, v_d, i_end=np.minimum(i_drop, i_b))

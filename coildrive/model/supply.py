@@ -129,7 +129,9 @@ def state(t, b: Bus) -> tuple[np.ndarray, np.ndarray]:
 
 def terminal(i, v, b: Bus) -> np.ndarray:
     """The coil's terminal current (A) at magnetising current ``i`` A and bus ``v`` V: ``k
-    (i + v/R_e)`` (``i`` itself without an eddy term)."""
+    (i + v/R_e)`` (``i`` itself without an eddy term). ``b``: any bus with the eddy
+    conductance ``g_e`` and the loop ``r`` (a saturating coil's
+    :class:`~coildrive.model.flux_bus.FluxBus` too)."""
     return (np.asarray(i, float) + b.g_e * np.asarray(v, float)) / (1.0 + b.r * b.g_e)
 
 
