@@ -1474,7 +1474,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                  supply: Supply, hold: Hold, pull_in: PullIn, armature: Armature | None,
                  duty) -> None:
     """What the boosted peak (``supply.boost``) is modelled with: a linear coil (an eddy
-    term too), a low-side
+    term too) or a flux-linkage curve (without an eddy term), a low-side
     or a high-side switch or a full bridge (the boost switch feeding leg A's high side, the
     release into the main bus: :func:`_check_bridge` says what a bridge takes), a
     diode/zener/resistor freewheel (split decay too) or a clamp on
@@ -1488,8 +1488,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         raise InputError(source, "supply.boost", f"{supply.boost:g} V less its tolerance is not above "
                          f"supply.max ({supply.max:g} V), expected a higher voltage than the main supply")
     why = None
-    if coil.flux_current:
-        key, why = "coil.flux_current", "a flux-linkage curve"
+    if coil.flux_current and coil.eddy_resistance:
+        key = "coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance"
+        why = "a flux-linkage curve and an eddy-current term together"
     elif freewheel.type == "clamp" and switch.topology != "low_side":
         key, why = "freewheel.type", "a clamp across a high-side switch (a clamp on a low-side switch only)"
         source = fw_origins.get("type", source)
@@ -1507,7 +1508,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                                            "not at a time after the pull-in)")
     if why is not None:
         raise InputError(source, key, f"the boosted peak (supply.boost) is not modelled with {why}: "
-                         "expected boost left out, or a linear coil (an eddy term too), a low-side or "
+                         "expected boost left out, or a linear coil (an eddy term too) or a flux-linkage "
+                         "curve (not both), a low-side or "
                          "high-side switch or a "
                          "full bridge, a "
                          "diode/zener/resistor freewheel (split decay too; a clamp on a low-side "

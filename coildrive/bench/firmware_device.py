@@ -38,7 +38,8 @@ the capacitor's voltage at its switch-on; from the conversion that turns it off,
 main supply's RL rise. The capacitor starts charged to the boost's nominal voltage and
 between peaks recharges at ``boost_power`` (:func:`coildrive.model.boost.recharge_voltage`);
 the main supply's diode taking over below the bus is left out (the design's
-``boost_droop`` check keeps the capacitor above it).
+``boost_droop`` check keeps the capacitor above it). A boosted peak on a flux-linkage
+curve is not run here yet (:meth:`FirmwareDevice.check_design` refuses it in one line).
 
 A full bridge's mixed-decay hold (``hold.fast_fraction``): each off-time decays through
 the fast path (all four open) up to the timer count the driver gives through its
@@ -269,6 +270,10 @@ class FirmwareDevice(LineOutput):
         if design.drive.armature is not None and design.drive.supply.droops:
             raise ValueError("firmware in the loop does not run a moving [armature] on a drooping bus "
                              "(supply.source_resistance) yet: emulate it without --firmware (the model's device)")
+        if design.boost is not None and design.drive.coil.flux_current:
+            raise ValueError("firmware in the loop does not run a boosted peak on a flux-linkage curve yet (the "
+                             "boost's run from the state the driver switches it on at is not stepped): emulate "
+                             "it without --firmware (the model's device)")
 
     def _pull_in_flight(self, faulty, design, l_scale):
         """With an armature (not stuck): ``(time, current)`` of the pull-in with the switch

@@ -37,6 +37,18 @@ How it is stepped, and why:
   one fixed grid serves every corner in one pass (no per-point calls, no scipy import on
   the design's path), and ETDRK4 is not among scipy's methods.
 
+**A capacitor with no source** (:func:`capacitor`: a boost capacitor charged to ``V_b``
+discharging into the coil, :mod:`coildrive.model.flux_boost`)::
+
+    L_d(i) di/dt = v - R i,    C dv/dt = -i,    i(0) = 0, v(0) = V_b
+
+is the same stepper with the source's terms taken out: the bus is stepped as itself
+(``w = v``, no decay of its own, so ETDRK4's weights are those of the classical
+fourth-order Runge-Kutta method on both states), and its rate is ``-i/C``. Its
+stretches (:func:`_phases`) come from the linear series RLC circuit at the curve's
+largest incremental inductance below ``V_b/R`` (:func:`coildrive.model.rlc.first_peak`):
+the rise to the first current maximum, then as long again and more.
+
 The current is the coil current (the step response of this passive circuit rises to its
 first maximum; the record holds the whole horizon, so a later crossing is found too).
 All functions broadcast over numpy arrays; units are A, V, ohm, H, Wb, F, s.
@@ -48,6 +60,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from . import rlc
 from .flux import FluxCoil
 
 #: Least number of time steps after the rise.
@@ -111,7 +124,9 @@ class Record:
 class FluxBus:
     """The circuit of the module docstring at each point (arrays broadcast together) with
     a saturating ``coil`` (:class:`~coildrive.model.flux.FluxCoil`, one scale per point);
-    ``i_ss`` A the steady current ``V_s/(R + R_s)``. The run is made on first use."""
+    ``i_ss`` A the steady current ``V_s/(R + R_s)``. Not ``fed``: a capacitor with no
+    source (:func:`capacitor`; ``v_s`` its starting voltage, ``r_s`` 0, ``i_ss`` the bound
+    ``V_b/R``). The run is made on first use."""
 
     v_s: np.ndarray
     r_s: np.ndarray
@@ -119,6 +134,7 @@ class FluxBus:
     r: np.ndarray
     coil: FluxCoil
     i_ss: np.ndarray
+    fed: bool = True
     _run: list = field(default_factory=list, repr=False)
 
     def record(self, t_need=None, i_need=None) -> Record:
@@ -154,12 +170,25 @@ CACHE_SIZE = 8
 def bus(v_s, r_s, c, r, coil: FluxCoil) -> FluxBus:
     """The circuit of the module docstring at each point (``r_s`` > 0, ``c`` > 0); the same
     points and curve give the same object back (its run made once)."""
+    return _cached(v_s, r_s, c, r, coil, True)
+
+
+def capacitor(v_0, c, r, coil: FluxCoil) -> FluxBus:
+    """A capacitor of ``c`` F (> 0) charged to ``v_0`` V, with no source, discharging into
+    the loop of ``r`` ohm and the saturating ``coil`` from ``i = 0`` (module docstring);
+    cached as :func:`bus`."""
+    return _cached(v_0, 0.0, c, r, coil, False)
+
+
+def _cached(v_s, r_s, c, r, coil: FluxCoil, fed: bool) -> FluxBus:
+    """:func:`bus` (``fed``) or :func:`capacitor`, from the cache when the same points and
+    curve were asked for lately."""
     v_s, r_s, c, r, scale = np.broadcast_arrays(*(np.asarray(x, float) for x in (v_s, r_s, c, r, coil.scale)))
-    key = (id(coil.curve), v_s.shape, *(x.tobytes() for x in (v_s, r_s, c, r, scale)))
+    key = (id(coil.curve), fed, v_s.shape, *(x.tobytes() for x in (v_s, r_s, c, r, scale)))
     hit = _CACHE.get(key)
     if hit is not None and hit.coil.curve is coil.curve:
         return hit
-    fb = FluxBus(v_s.copy(), r_s.copy(), c.copy(), r.copy(), coil.with_scale(scale.copy()), v_s / (r + r_s))
+    fb = FluxBus(v_s.copy(), r_s.copy(), c.copy(), r.copy(), coil.with_scale(scale.copy()), v_s / (r + r_s), fed)
     if len(_CACHE) >= CACHE_SIZE:
         _CACHE.pop(next(iter(_CACHE)))
     _CACHE[key] = fb
@@ -176,6 +205,8 @@ def _phases(fb: FluxBus) -> list[tuple[int, np.ndarray]]:
     settles through ``R_s C``: 25 of each of those more. The second stretch's steps take
     :data:`PER_TIME_CONSTANT` per fastest coil time constant and per LC ringing period
     (at the smallest incremental inductance), at least :data:`STEPS`."""
+    if not fb.fed:
+        return _capacitor_phases(fb)
     cv = fb.coil.curve
     s = fb.coil.scale
     i_ss = fb.i_ss
@@ -192,6 +223,25 @@ def _phases(fb: FluxBus) -> list[tuple[int, np.ndarray]]:
     return [(RISE_STEPS, rise / RISE_STEPS), (steps, (horizon - rise) / steps)]
 
 
+def _capacitor_phases(fb: FluxBus) -> list[tuple[int, np.ndarray]]:
+    """A capacitor's two stretches (module docstring): with ``L_hi`` the largest and
+    ``L_lo`` the smallest incremental inductance below ``V_b/R``, the linear circuit's
+    first current maximum ``t_p`` at ``L_hi`` bounds the rise's time scale; the rise is
+    ``2 t_p``, the rest ``4 t_p`` more, each in steps of at most a
+    :data:`PER_TIME_CONSTANT`-th of ``L_lo/R`` and of the LC period at ``L_lo``
+    (:data:`RISE_STEPS` and :data:`STEPS` at least, :data:`MAX_STEPS` at most)."""
+    grid = np.linspace(0.0, 1.0, 65).reshape((-1,) + (1,) * fb.i_ss.ndim) * fb.i_ss
+    ld = fb.coil.scale * fb.coil.curve.incremental(grid)
+    l_hi, l_lo = ld.max(axis=0), ld.min(axis=0)
+    t_p = rlc.first_peak(-fb.c * fb.v_s, 0.0, fb.r, l_hi, fb.c)
+    h = np.minimum(l_lo / fb.r, 2.0 * np.pi * np.sqrt(l_lo * fb.c)) / PER_TIME_CONSTANT
+    out = []
+    for span, least in ((2.0 * t_p, RISE_STEPS), (4.0 * t_p, STEPS)):
+        steps = int(np.clip(np.max(np.ceil(span / h)), least, MAX_STEPS))
+        out.append((steps, span / steps))
+    return out
+
+
 def run(fb: FluxBus, phases=None, start: Record | None = None) -> Record:
     """Step the circuit over ``phases`` (``[(steps, step length s per point)]``, default
     :func:`_phases`) from switch-on, or on from the last row of ``start`` (an earlier
@@ -203,7 +253,11 @@ def run(fb: FluxBus, phases=None, start: Record | None = None) -> Record:
     top = np.append(cv.current, np.inf)[1:]          # piece k spans base[k] .. top[k]
     last = base.size - 1
     scale, r, r_s, c, v_s = fb.coil.scale, fb.r, fb.r_s, fb.c, fb.v_s
-    lam = -1.0 / (r_s * c)                            # the bus's own decay, 1/s
+    if fb.fed:
+        lam = -1.0 / (r_s * c)                        # the bus's own decay, 1/s
+        drain = np.zeros_like(c)
+    else:                                             # a capacitor alone: w = v, dv/dt = -i/C
+        v_s, lam, drain = np.zeros_like(v_s), np.zeros_like(c), 1.0 / c
     g = r + r_s
 
     def piece(k):
@@ -215,7 +269,7 @@ def run(fb: FluxBus, phases=None, start: Record | None = None) -> Record:
         """``(di/dt, dw/dt without w's own decay)`` with piece ``p``'s polynomial."""
         d = i - p[0]
         di = (v_s - g * i + w) / ((p[2] * d + p[3]) * d + p[4])
-        return di, r_s * di
+        return di, r_s * di - drain * i
 
     def weights(h):
         z = lam * h
@@ -238,11 +292,13 @@ def run(fb: FluxBus, phases=None, start: Record | None = None) -> Record:
                 e * w + h * (f1 * nw0 + 2 * f2 * (nwa + nwb) + f3 * nwc))
 
     def row(t, i, w, n0):
-        """A record row: the bus ``v = V_s - R_s i + w`` and its rate ``-w/(R_s C)``."""
-        return t, i, v_s - r_s * i + w, n0[0], lam * w
+        """A record row: the bus ``v = V_s - R_s i + w`` and its rate ``-w/(R_s C)`` (a
+        capacitor alone: ``v = w``, its rate ``-i/C``)."""
+        return t, i, v_s - r_s * i + w, n0[0], lam * w - drain * i
 
     if start is None:
-        t, i, w, k = np.zeros_like(v_s), np.zeros_like(v_s), np.zeros_like(v_s), np.zeros(v_s.shape, int)
+        t, i, k = np.zeros_like(v_s), np.zeros_like(v_s), np.zeros(v_s.shape, int)
+        w = np.zeros_like(v_s) if fb.fed else fb.v_s.copy()
     else:
         t, i, k = start.t[-1], start.i[-1], start.k
         w = start.v[-1] - v_s + r_s * i
