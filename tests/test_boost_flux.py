@@ -236,20 +236,61 @@ def test_design_header_simulate_and_emulate(tmp_path):
     assert report.ok, [(i.name, i.status, i.detail) for i in report.items if i.status == "FAIL"]
 
 
-def test_what_stays_refused(tmp_path):
-    # an eddy term with the curve, and the compiled driver in the loop: one line each, exit 2
+def test_a_curve_and_an_eddy_term_stay_refused(tmp_path):
     from typer.testing import CliRunner
 
     from coildrive.cli import app
 
-    path = _drive(tmp_path)
     eddy = tmp_path / "eddy.toml"
-    eddy.write_text(path.read_text().replace("inductance_tolerance", 'eddy_resistance = "200 ohm"\ninductance_tolerance'))
-    runner = CliRunner()
-    out = runner.invoke(app, ["design", str(eddy)])
+    eddy.write_text(_drive(tmp_path).read_text().replace(
+        "inductance_tolerance", 'eddy_resistance = "200 ohm"\ninductance_tolerance'))
+    out = CliRunner().invoke(app, ["design", str(eddy)])
     line = out.stderr.strip()
     assert out.exit_code == 2 and "\n" not in line and "coil.eddy_resistance" in line, line
-    # (refused from the design, before the driver folder is looked at or built)
-    out = runner.invoke(app, ["emulate", str(path), "--firmware", str(tmp_path), "--duration", "0.1"])
-    line = out.stderr.strip()
-    assert out.exit_code == 2 and "\n" not in line and "coil.flux_current" in line, line
+
+
+@pytest.mark.compiler
+def test_compiled_driver_in_the_loop(tmp_path):
+    # gcc builds firmware-driver's C for the curve; in the loop (in process) the hottest
+    # coil at its high R and L at 9 V (the longest peak) ends at the threshold without a
+    # fault, and a coil of 3 x the curve does not reach it by BOOST_TIMEOUT_TICKS. The
+    # emulator steps the boost capacitor into the curve from the current and the
+    # capacitor's voltage where the driver switches it on (the design's physics: plumbing)
+    from coildrive.bench import FrameDecoder
+    from coildrive.bench.device import DeviceOptions
+    from coildrive.bench.firmware_device import FirmwareDevice
+    from coildrive.bench.messages import Event, EventKind, FaultCode
+    from coildrive.codegen.host_build import build_firmware
+    from coildrive.config import load_drive
+    from coildrive.design import design
+
+    require_tool("gcc")
+    path = _drive(tmp_path)
+    assert run_cli("firmware-driver", str(path), "--out", str(tmp_path / "fw")).returncode == 0
+    d = design(load_drive(path))
+    lib = build_firmware(tmp_path / "fw", d, cache=tmp_path / "cache")
+    c = d.drive.coil
+    hot = max(x.coil_temp_c for x in d.corners)
+    for supply, temp, rs, ls in ((d.drive.supply.min, hot, 1 + c.resistance_tolerance, 1 + c.inductance_tolerance),
+                                 (d.drive.supply.nominal, None, 1.0, 3.0)):
+        dev = FirmwareDevice(d, lib, DeviceOptions(supply=supply, coil_temp=temp, resistance_scale=rs,
+                                                   inductance_scale=ls, first_actuation=0.002, noise_codes=1,
+                                                   seed=3, hold_time=0.005))
+        dec, events, t = FrameDecoder(), [], 0.0
+        while t < 0.1 and EventKind.OFF not in [e.kind for e in events]:
+            t += 0.005
+            events += [m for m in dec.feed(dev.read(t)) if isinstance(m, Event)]
+        kinds = [e.kind for e in events]
+        assert EventKind.OFF in kinds, (supply, temp, ls, kinds)
+        on = next(e.index for e in events if e.kind == EventKind.ON)
+        if ls < 3.0:
+            assert EventKind.PEAK_END in kinds and EventKind.FAULT not in kinds, (supply, temp, kinds)
+            end = next(e.index for e in events if e.kind == EventKind.PEAK_END)
+            # the peak ends within the time-out, after at least the design's fastest time
+            took = (end - on) / d.drive.board.adc.sample_rate
+            assert d.boost.fastest_time_s <= took <= d.pull_in.peak_time_s, took
+            continue
+        faults = [e for e in events if e.kind == EventKind.FAULT]
+        assert [e.value for e in faults] == [int(FaultCode.BOOST_TIMEOUT)] and EventKind.PEAK_END not in kinds
+        took = (faults[0].index - on) / d.drive.board.adc.sample_rate * d.drive.board.tick.rate
+        assert d.boost.timeout_ticks - 1 <= took <= d.boost.timeout_ticks, took

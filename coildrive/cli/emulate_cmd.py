@@ -115,8 +115,7 @@ def emulate_command(
             device = VirtualDevice(d.drive, options, design=d)
     except ValueError as err:
         # the two designs the virtual device cannot run; anything else is not the file's
-        key = ("coil.flux_current" if "flux-linkage curve" in str(err) else
-               "coil.eddy_resistance" if "eddy term" in str(err) else
+        key = ("coil.eddy_resistance" if "eddy term" in str(err) else
                "hold.mode" if "voltage-mode" in str(err) or "current-mode hold" in str(err) else
                "pull_in.current" if "peak phase" in str(err) else
                "armature" if "[armature]" in str(err) else None)

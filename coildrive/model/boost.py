@@ -59,6 +59,7 @@ Physics only; SI units (A, V, ohm, H, F, s, J, W); every function broadcasts ove
 
 from __future__ import annotations
 
+import dataclasses
 import sys
 from dataclasses import dataclass
 
@@ -118,6 +119,12 @@ def boost(v_b, c, r, l, r_e=None):
         return flux_boost.boost(v_b, c, r, l)
     g_e = 0.0 if r_e is None else 1.0 / np.asarray(r_e, float)
     return Boost(*np.broadcast_arrays(*(np.asarray(x, float) for x in (v_b, c, r, l, g_e))))
+
+
+def with_voltage(b, v_b):
+    """The boost ``b`` (this module's or :mod:`coildrive.model.flux_boost`'s) charged to
+    ``v_b`` V at its switch-on instead."""
+    return dataclasses.replace(b, v_b=np.broadcast_to(np.asarray(v_b, float), np.shape(b.v_b)) + 0.0)
 
 
 def of(b):

@@ -13,7 +13,9 @@ flux-linkage curve (:mod:`coildrive.model.flux`) in place of ``L``.
   drooping bus's stepper with the source's terms taken out, split at the table's
   points, one run for every point), read by cubic Hermite interpolation. The current
   rises to its first maximum where ``v_C = R i`` (the first zero of ``v_C - R i`` in the
-  record); the time to a threshold is its first crossing before that maximum.
+  record); the time to a threshold is its first crossing before that maximum. From a
+  current other than zero (the compiled driver's emulated device switching the boost on
+  mid-run) the same stepper runs from that state over the time asked (:func:`state`).
 
 Energy, exact from the state either way (conservation of energy in the lumped loop): the
 capacitor gives up ``1/2 C_b (V_b^2 - v_C^2)``; an ideal source ``V_b int i dt`` with
@@ -76,14 +78,51 @@ def _bus(b: FluxBoost) -> flux_bus.FluxBus:
 
 
 def state(t, b: FluxBoost, i0=0.0) -> tuple[np.ndarray, np.ndarray]:
-    """``(coil current A, boost voltage V)`` ``t`` s after switch-on; from ``i0`` A for an
-    ideal source (a capacitor's run starts from rest: ``i0`` must be 0)."""
+    """``(coil current A, boost voltage V)`` ``t`` s after switch-on, from the current ``i0``
+    A then (0: from rest; the capacitor at ``b.v_b`` either way)."""
     if b.source:
         i = rise_current(t, i0, b.v_b, b.r, b.coil)
         return i, np.broadcast_to(b.v_b, np.shape(i)) + 0.0
     if np.any(np.asarray(i0, float) != 0.0):
-        raise ValueError("a boost capacitor's run into a curve starts from rest")
+        return flux_bus.state(t, _run_from(b, i0, float(np.max(t))))
     return flux_bus.state(t, _bus(b))
+
+
+#: The last few runs from a current (the compiled driver's device asks one PWM period's
+#: run several questions: :mod:`coildrive.bench.firmware_device`).
+_FROM: dict = {}
+FROM_CACHE = 8
+#: Least steps of a run from a current.
+FROM_STEPS = 64
+
+
+def _run_from(b: FluxBoost, i0, t_need: float) -> flux_bus.FluxBus:
+    """The capacitor's run from the current ``i0`` A (and ``b.v_b`` V) over at least
+    ``t_need`` s: :func:`coildrive.model.flux_bus.run` from that state, in steps of at
+    most a tenth of ``L_d,min / R`` and of the LC period at ``L_d,min`` (the least
+    incremental inductance up to the higher of ``i0`` and ``V_b / R``)."""
+    i0 = np.broadcast_to(np.asarray(i0, float), b.v_b.shape)
+    key = (id(b.coil.curve), *(np.asarray(x, float).tobytes() for x in (b.v_b, b.c, b.r, b.coil.scale, i0)))
+    hit = _FROM.get(key)
+    if hit is not None and hit[0] >= t_need and hit[1].coil.curve is b.coil.curve:
+        return hit[1]
+    cv, scale = b.coil.curve, b.coil.scale
+    top = np.maximum(i0, b.v_b / b.r)
+    grid = np.linspace(0.0, 1.0, 65).reshape((-1,) + (1,) * top.ndim) * top
+    l_lo = (scale * cv.incremental(grid)).min(axis=0)
+    h = float(np.min(np.minimum(l_lo / b.r, 2.0 * np.pi * np.sqrt(l_lo * b.c)))) / flux_bus.PER_TIME_CONSTANT
+    horizon = max(t_need, 0.0) * 1.25 + 1e-15
+    n = int(np.clip(np.ceil(horizon / h), FROM_STEPS, flux_bus.MAX_STEPS))
+    k0 = np.clip(np.searchsorted(cv.current, i0, side="right") - 1, 0, cv.base.size - 1)
+    di0 = (b.v_b - b.r * i0) / (scale * cv.incremental(i0))     # the rates at the start, as run's rows
+    start = flux_bus.Record(*(np.asarray(x, float)[None] for x in (np.zeros_like(i0), i0, b.v_b, di0, -i0 / b.c)),
+                            k=k0)
+    fb = flux_bus.FluxBus(b.v_b, np.zeros_like(b.v_b), b.c, b.r, b.coil, b.v_b / b.r, False)
+    fb = fb.with_record(flux_bus.run(fb, [(n, horizon / n)], start))
+    if len(_FROM) >= FROM_CACHE:
+        _FROM.pop(next(iter(_FROM)))
+    _FROM[key] = (horizon, fb)
+    return fb
 
 
 def terminal(i, v, b: FluxBoost) -> np.ndarray:
