@@ -294,3 +294,29 @@ def test_compiled_driver_in_the_loop(tmp_path):
         assert [e.value for e in faults] == [int(FaultCode.BOOST_TIMEOUT)] and EventKind.PEAK_END not in kinds
         took = (faults[0].index - on) / d.drive.board.adc.sample_rate * d.drive.board.tick.rate
         assert d.boost.timeout_ticks - 1 <= took <= d.boost.timeout_ticks, took
+
+
+def test_high_side_simulate_takes_the_boost_rail(tmp_path):
+    # a high-side switch (sourcing-hs-zener: 60 mohm switch, sense in the coil return):
+    # the node and the coil voltage columns as the linear coil's, the node fed from the
+    # boost rail in the peak and pulled below ground by the freewheel path at the turn-off
+    from typer.testing import CliRunner
+
+    from coildrive.cli import app
+
+    path = _drive(tmp_path)
+    text = path.read_text().replace("lab-m32-zener.toml", "sourcing-hs-zener.toml")
+    path.write_text(text.split("[freewheel]")[0])       # the board's own freewheel path
+    out = CliRunner().invoke(app, ["simulate", str(path), "--supply", "12", "--coil-temp", "40", "--hold-time",
+                                   "2 ms", "--csv", str(tmp_path / "s.csv")])
+    assert out.exit_code == 0, out.stderr
+    rows = np.genfromtxt(tmp_path / "s.csv", delimiter=",", names=True)
+    t_peak = float(out.stderr.split("peak ")[1].split(" ms")[0]) * 1e-3
+    peak = rows["time_s"] <= t_peak * 0.999
+    i = rows["current_a"]
+    # Kirchhoff: in the peak the node is the boost capacitor less the boost path and the switch
+    assert np.allclose(rows["node_voltage_v"][peak], rows["boost_v"][peak] - i[peak] * (0.1 + 0.06), atol=1e-4)
+    hold_on = (rows["time_s"] >= t_peak * 1.001) & (rows["switch_on"] == 1)
+    assert np.allclose(rows["node_voltage_v"][hold_on], 12.0 - i[hold_on] * 0.06, atol=1e-4)
+    # the board's freewheel: diode + Zener, 15.9 V below ground at every turn-off
+    assert rows["node_voltage_v"].min() == pytest.approx(-15.9, abs=1e-4)

@@ -285,7 +285,7 @@ def _flux_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: flo
     on = np.concatenate(ons).astype(np.int8)
     v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
     events = {"on": 0.0, "hold": peak_time, "off": t_cut, "zero": t_cut + tz}
-    extra = {}
+    extra = node_columns(drive, supply, current, on, v_sw)   # a high-side switch's node
     if full_bridge(drive):
         v_sw = np.where(time > t_cut, _switch_and_sense(drive, release_lp, supply, current, on)[0], v_sw)
         v_sw, sense, extra = _bridge_columns(drive, supply, time, current, on, v_sw, t_cut)
