@@ -141,9 +141,12 @@ def peak_time(b: FluxBoost, sensed: bool = False) -> np.ndarray:
     if b.source:
         return np.full(b.v_b.shape, np.inf)
     fb = _bus(b)
-    t0, h, i0, i1, di0, di1, v0, v1, dv0, dv1 = flux_bus.segments(fb.record())
-    t, found = flux_bus.first_crossing(t0, h, v0 - b.r * i0, v1 - b.r * i1, dv0 - b.r * di0,
-                                       dv1 - b.r * di1, 0.0, rising=False)
+    for need in (None, np.inf):      # the rise, then the whole horizon where it holds no maximum
+        t0, h, i0, i1, di0, di1, v0, v1, dv0, dv1 = flux_bus.segments(fb.record(t_need=need))
+        t, found = flux_bus.first_crossing(t0, h, v0 - b.r * i0, v1 - b.r * i1, dv0 - b.r * di0,
+                                           dv1 - b.r * di1, 0.0, rising=False)
+        if np.all(found):
+            break
     return np.where(found, t, np.inf)
 
 

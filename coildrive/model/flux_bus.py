@@ -227,18 +227,30 @@ def _capacitor_phases(fb: FluxBus) -> list[tuple[int, np.ndarray]]:
     """A capacitor's two stretches (module docstring): with ``L_hi`` the largest and
     ``L_lo`` the smallest incremental inductance below ``V_b/R``, the linear circuit's
     first current maximum ``t_p`` at ``L_hi`` bounds the rise's time scale; the rise is
-    ``2 t_p``, the rest ``4 t_p`` more, each in steps of at most a
-    :data:`PER_TIME_CONSTANT`-th of ``L_lo/R`` and of the LC period at ``L_lo``
-    (:data:`RISE_STEPS` and :data:`STEPS` at least, :data:`MAX_STEPS` at most)."""
+    ``2 t_p``, the rest ``4 t_p`` more. Steps: at most a :data:`PER_TIME_CONSTANT`-th of
+    ``L_lo/R`` and of the LC period at ``L_lo``, and at most the least time the current
+    can take through a table piece (its width x its least ``L_d`` / ``V_b``: ``di/dt <=
+    V_b / L_d``), so that a step's polynomial is never carried past the next piece;
+    :data:`RISE_STEPS` and :data:`STEPS` at least, :data:`MAX_STEPS` at most (the rise then
+    ends sooner, the rest takes longer steps)."""
+    cv, scale = fb.coil.curve, fb.coil.scale
     grid = np.linspace(0.0, 1.0, 65).reshape((-1,) + (1,) * fb.i_ss.ndim) * fb.i_ss
-    ld = fb.coil.scale * fb.coil.curve.incremental(grid)
+    ld = scale * cv.incremental(grid)
     l_hi, l_lo = ld.max(axis=0), ld.min(axis=0)
     t_p = rlc.first_peak(-fb.c * fb.v_s, 0.0, fb.r, l_hi, fb.c)
     h = np.minimum(l_lo / fb.r, 2.0 * np.pi * np.sqrt(l_lo * fb.c)) / PER_TIME_CONSTANT
-    out = []
-    for span, least in ((2.0 * t_p, RISE_STEPS), (4.0 * t_p, STEPS)):
-        steps = int(np.clip(np.max(np.ceil(span / h)), least, MAX_STEPS))
-        out.append((steps, span / steps))
+    width = np.diff(cv.current)
+    inside = cv.current[:-1, None] + width[:, None] * np.linspace(0.0, 1.0, 9)[None, :]
+    piece_l = cv.incremental(inside).min(axis=1)                       # per piece, unscaled
+    below = cv.current[:-1].reshape((-1,) + (1,) * fb.i_ss.ndim) < fb.i_ss
+    cross = np.where(below, (width * piece_l).reshape(below.shape[:1] + (1,) * fb.i_ss.ndim), np.inf)
+    h = np.minimum(h, scale * cross.min(axis=0) / fb.v_s)
+    out, done = [], 0.0
+    for span, least in ((2.0 * t_p, RISE_STEPS), (6.0 * t_p, STEPS)):
+        steps = int(np.clip(np.max(np.ceil((span - done) / h)), least, MAX_STEPS))
+        dt = np.minimum((span - done) / steps, h) if not out else (span - done) / steps
+        out.append((steps, dt))
+        done = done + steps * dt
     return out
 
 
