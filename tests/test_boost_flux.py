@@ -50,9 +50,9 @@ def _coil(scale: float = 1.0) -> FluxCoil:
     return FluxCoil(FluxCurve(CURVE_I, CURVE_PSI), np.asarray(scale))
 
 
-def _reference(c: float, v: float, stop: float, events=()):
-    """scipy ``solve_ivp`` (Radau) of the loop, written afresh; the curve by scipy's
-    ``PchipInterpolator``. ``c`` 0: an ideal source at ``v``."""
+def _reference(c: float, v: float, stop: float, events=(), i0: float = 0.0):
+    """scipy ``solve_ivp`` (Radau) of the loop from ``i0`` A, written afresh; the curve by
+    scipy's ``PchipInterpolator``. ``c`` 0: an ideal source at ``v``."""
     from scipy.integrate import solve_ivp
     from scipy.interpolate import PchipInterpolator
 
@@ -61,7 +61,7 @@ def _reference(c: float, v: float, stop: float, events=()):
     def f(t, y):              # y = (i, v_C)
         return [(y[1] - R * y[0]) / float(ld(y[0])), -y[0] / c if c > 0 else 0.0]
 
-    return solve_ivp(f, (0.0, stop), [0.0, v], method="Radau", rtol=1e-10, atol=1e-12, events=list(events),
+    return solve_ivp(f, (0.0, stop), [i0, v], method="Radau", rtol=1e-10, atol=1e-12, events=list(events),
                      dense_output=True)
 
 
@@ -115,6 +115,17 @@ def test_capacitor_into_the_curve_against_scipy(c):
     assert R * float(m.square_integral(t_th, b)) == pytest.approx(copper, rel=1e-4), c
     # beyond the first maximum the threshold is never reached
     assert math.isinf(float(m.threshold_time(1.01 * top, b)))
+
+
+def test_run_from_a_current_against_scipy():
+    # the compiled driver's device switches the boost on mid-run: the capacitor at 40 V
+    # into the curve already carrying 2 A, over one 50 us PWM period (scipy solve_ivp, Radau)
+    b = boost_model.boost(40.0, C_B, R, _coil())
+    m = boost_model.of(b)
+    t = np.linspace(0.0, 50e-6, 11)
+    i, v = m.state(t, b, 2.0)
+    ref = _reference(C_B, 40.0, 50e-6, i0=2.0).sol(t)
+    assert np.allclose(i, ref[0], rtol=1e-6) and np.allclose(v, ref[1], rtol=1e-6), (i - ref[0], v - ref[1])
 
 
 def test_converter_into_the_curve_against_scipy():

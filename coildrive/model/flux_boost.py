@@ -100,7 +100,8 @@ def _run_from(b: FluxBoost, i0, t_need: float) -> flux_bus.FluxBus:
     """The capacitor's run from the current ``i0`` A (and ``b.v_b`` V) over at least
     ``t_need`` s: :func:`coildrive.model.flux_bus.run` from that state, in steps of at
     most a tenth of ``L_d,min / R`` and of the LC period at ``L_d,min`` (the least
-    incremental inductance up to the higher of ``i0`` and ``V_b / R``)."""
+    incremental inductance up to the higher of ``i0`` and ``V_b / R``) and of the least
+    time through a table piece (:func:`coildrive.model.flux_bus.piece_time`)."""
     i0 = np.broadcast_to(np.asarray(i0, float), b.v_b.shape)
     key = (id(b.coil.curve), *(np.asarray(x, float).tobytes() for x in (b.v_b, b.c, b.r, b.coil.scale, i0)))
     hit = _FROM.get(key)
@@ -110,7 +111,8 @@ def _run_from(b: FluxBoost, i0, t_need: float) -> flux_bus.FluxBus:
     top = np.maximum(i0, b.v_b / b.r)
     grid = np.linspace(0.0, 1.0, 65).reshape((-1,) + (1,) * top.ndim) * top
     l_lo = (scale * cv.incremental(grid)).min(axis=0)
-    h = float(np.min(np.minimum(l_lo / b.r, 2.0 * np.pi * np.sqrt(l_lo * b.c)))) / flux_bus.PER_TIME_CONSTANT
+    h = np.minimum(l_lo / b.r, 2.0 * np.pi * np.sqrt(l_lo * b.c)) / flux_bus.PER_TIME_CONSTANT
+    h = float(np.min(np.minimum(h, flux_bus.piece_time(b.coil, b.v_b, top))))
     horizon = max(t_need, 0.0) * 1.25 + 1e-15
     n = int(np.clip(np.ceil(horizon / h), FROM_STEPS, flux_bus.MAX_STEPS))
     k0 = np.clip(np.searchsorted(cv.current, i0, side="right") - 1, 0, cv.base.size - 1)

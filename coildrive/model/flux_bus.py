@@ -239,12 +239,7 @@ def _capacitor_phases(fb: FluxBus) -> list[tuple[int, np.ndarray]]:
     l_hi, l_lo = ld.max(axis=0), ld.min(axis=0)
     t_p = rlc.first_peak(-fb.c * fb.v_s, 0.0, fb.r, l_hi, fb.c)
     h = np.minimum(l_lo / fb.r, 2.0 * np.pi * np.sqrt(l_lo * fb.c)) / PER_TIME_CONSTANT
-    width = np.diff(cv.current)
-    inside = cv.current[:-1, None] + width[:, None] * np.linspace(0.0, 1.0, 9)[None, :]
-    piece_l = cv.incremental(inside).min(axis=1)                       # per piece, unscaled
-    below = cv.current[:-1].reshape((-1,) + (1,) * fb.i_ss.ndim) < fb.i_ss
-    cross = np.where(below, (width * piece_l).reshape(below.shape[:1] + (1,) * fb.i_ss.ndim), np.inf)
-    h = np.minimum(h, scale * cross.min(axis=0) / fb.v_s)
+    h = np.minimum(h, piece_time(fb.coil, fb.v_s, fb.i_ss))
     out, done = [], 0.0
     for span, least in ((2.0 * t_p, RISE_STEPS), (6.0 * t_p, STEPS)):
         steps = int(np.clip(np.max(np.ceil((span - done) / h)), least, MAX_STEPS))
@@ -252,6 +247,21 @@ def _capacitor_phases(fb: FluxBus) -> list[tuple[int, np.ndarray]]:
         out.append((steps, dt))
         done = done + steps * dt
     return out
+
+
+def piece_time(coil: FluxCoil, v_top, i_top) -> np.ndarray:
+    """The least time (s, per point) the current can take through a table piece that
+    starts below ``i_top`` A, with at most ``v_top`` V across the coil: the piece's width x
+    its least incremental inductance / ``v_top`` (``di/dt <= v / L_d``); ``inf`` where no
+    piece starts below ``i_top`` (the straight extension above the table: constant
+    ``L_d``)."""
+    cv = coil.curve
+    i_top = np.asarray(i_top, float)
+    width = np.diff(cv.current)
+    inside = cv.current[:-1, None] + width[:, None] * np.linspace(0.0, 1.0, 9)[None, :]
+    least = (width * cv.incremental(inside).min(axis=1)).reshape((-1,) + (1,) * i_top.ndim)
+    below = cv.current[:-1].reshape(least.shape) < i_top
+    return coil.scale * np.where(below, least, np.inf).min(axis=0) / np.asarray(v_top, float)
 
 
 def run(fb: FluxBus, phases=None, start: Record | None = None) -> Record:
