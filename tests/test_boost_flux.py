@@ -32,7 +32,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from conftest import EXAMPLES, require_tool, run_cli
+from conftest import EXAMPLES, require_tool
 from test_boost import C_B, I_TH, R_B, R_ON, V_B, V_D, assert_peak, boost_netlist
 
 from coildrive.model import boost as boost_model
@@ -193,10 +193,19 @@ def _drive(tmp_path, extra: tuple[str, str] | None = None):
 _DRIVE_I = [0, 0.2, 0.4, 0.6, 0.8, 1.0, 1.3, 1.6, 2.0, 3.0, 4.0]
 
 
+def _cli(*args: str):
+    """The command line in process (typer's CliRunner): ``exit_code``, ``stdout``, ``stderr``."""
+    from typer.testing import CliRunner
+
+    from coildrive.cli import app
+
+    return CliRunner().invoke(app, list(args))
+
+
 def test_design_header_simulate_and_emulate(tmp_path):
     path = _drive(tmp_path)
-    out = run_cli("design", str(path), "--json", "--header", str(tmp_path / "d.h"))
-    assert out.returncode == 0, out.stderr
+    out = _cli("design", str(path), "--json", "--header", str(tmp_path / "d.h"))
+    assert out.exit_code == 0, out.stderr
     d = json.loads(out.stdout)
     b = d["boost"]
     # hand-worked, as the linear example: 1.3 x 0.9 A = 1.17 A, code ceil(2904.44) = 2905
@@ -221,9 +230,9 @@ def test_design_header_simulate_and_emulate(tmp_path):
     got = subprocess.run([str(tmp_path / "main")], capture_output=True, text=True, check=True).stdout.split()
     assert [int(x) for x in got] == [2905, b["timeout_ticks"]]
     # simulate: the peak from the boost to the nominal trip, then the hold from 9 V
-    sim = run_cli("simulate", str(path), "--supply", "9", "--coil-temp", "100", "--hold-time", "2 ms",
-                  "--csv", str(tmp_path / "s.csv"))
-    assert sim.returncode == 0, sim.stderr
+    sim = _cli("simulate", str(path), "--supply", "9", "--coil-temp", "100", "--hold-time", "2 ms",
+               "--csv", str(tmp_path / "s.csv"))
+    assert sim.exit_code == 0, sim.stderr
     rows = np.genfromtxt(tmp_path / "s.csv", delimiter=",", names=True)
     assert rows["boost_v"][0] == pytest.approx(48.0)
     t_peak = float(sim.stderr.split("peak ")[1].split(" ms")[0]) * 1e-3
@@ -252,14 +261,10 @@ def test_design_header_simulate_and_emulate(tmp_path):
 
 
 def test_a_curve_and_an_eddy_term_stay_refused(tmp_path):
-    from typer.testing import CliRunner
-
-    from coildrive.cli import app
-
     eddy = tmp_path / "eddy.toml"
     eddy.write_text(_drive(tmp_path).read_text().replace(
         "inductance_tolerance", 'eddy_resistance = "200 ohm"\ninductance_tolerance'))
-    out = CliRunner().invoke(app, ["design", str(eddy)])
+    out = _cli("design", str(eddy))
     line = out.stderr.strip()
     assert out.exit_code == 2 and "\n" not in line and "coil.eddy_resistance" in line, line
 
@@ -281,7 +286,7 @@ def test_compiled_driver_in_the_loop(tmp_path):
 
     require_tool("gcc")
     path = _drive(tmp_path)
-    assert run_cli("firmware-driver", str(path), "--out", str(tmp_path / "fw")).returncode == 0
+    assert _cli("firmware-driver", str(path), "--out", str(tmp_path / "fw")).exit_code == 0
     d = design(load_drive(path))
     lib = build_firmware(tmp_path / "fw", d, cache=tmp_path / "cache")
     c = d.drive.coil
@@ -315,15 +320,11 @@ def test_high_side_simulate_takes_the_boost_rail(tmp_path):
     # a high-side switch (sourcing-hs-zener: 60 mohm switch, sense in the coil return):
     # the node and the coil voltage columns as the linear coil's, the node fed from the
     # boost rail in the peak and pulled below ground by the freewheel path at the turn-off
-    from typer.testing import CliRunner
-
-    from coildrive.cli import app
-
     path = _drive(tmp_path)
     text = path.read_text().replace("lab-m32-zener.toml", "sourcing-hs-zener.toml")
     path.write_text(text.split("[freewheel]")[0])       # the board's own freewheel path
-    out = CliRunner().invoke(app, ["simulate", str(path), "--supply", "12", "--coil-temp", "40", "--hold-time",
-                                   "2 ms", "--csv", str(tmp_path / "s.csv")])
+    out = _cli("simulate", str(path), "--supply", "12", "--coil-temp", "40", "--hold-time", "2 ms",
+               "--csv", str(tmp_path / "s.csv"))
     assert out.exit_code == 0, out.stderr
     from test_boost_high_side import assert_node_on_the_boost_rail
     assert_node_on_the_boost_rail(tmp_path / "s.csv", out.stderr)
