@@ -1471,7 +1471,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                  supply: Supply, hold: Hold, pull_in: PullIn, armature: Armature | None,
                  duty) -> None:
     """What the boosted peak (``supply.boost``) is modelled with: a linear coil (an eddy
-    term too), a low-side
+    term too) or a flux-linkage curve (without an eddy term), a low-side
     or a high-side switch or a full bridge (the boost switch feeding leg A's high side, the
     release into the main bus: :func:`_check_bridge` says what a bridge takes), a
     diode/zener/resistor freewheel (split decay too) or a clamp across a low-side or a
@@ -1487,8 +1487,12 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         raise InputError(source, "supply.boost", f"{supply.boost:g} V less its tolerance is not above "
                          f"supply.max ({supply.max:g} V), expected a higher voltage than the main supply")
     why = None
-    if coil.flux_current:
-        key, why = "coil.flux_current", "a flux-linkage curve"
+    if coil.flux_current and coil.eddy_resistance:
+        key = "coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance"
+        why = "a flux-linkage curve and an eddy-current term together"
+    elif supply.droops and coil.flux_current:
+        key, why = "supply.source_resistance", ("a drooping main supply and a flux-linkage curve together "
+                                                "(the hold's hand-over onto the bus is a linear coil's)")
     elif supply.droops and coil.eddy_resistance:
         key, why = "supply.source_resistance", ("a drooping main supply and an eddy-current term together "
                                                 "(the hold's hand-over onto the bus is a plain coil's)")
@@ -1509,7 +1513,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                                            "not at a time after the pull-in)")
     if why is not None:
         raise InputError(source, key, f"the boosted peak (supply.boost) is not modelled with {why}: "
-                         "expected boost left out, or a linear coil (an eddy term too), a low-side or "
+                         "expected boost left out, or a linear coil (an eddy term too) or a flux-linkage "
+                         "curve (not both), a low-side or "
                          "high-side switch or a "
                          "full bridge, a "
                          "diode/zener/resistor freewheel (split decay too) or a clamp, a stiff "

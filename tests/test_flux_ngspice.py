@@ -60,12 +60,12 @@ def _flux_drive(tmp_path, freewheel="diode", position="coil", **kw):
     return drive
 
 
-def _flux_netlist(text: str, lp) -> str:
+def _flux_netlist(text: str, lp, top: float = 3.0) -> str:
     """Replace the linear inductor of ``text`` by the flux-controlled one of ``lp``'s curve
-    (its tolerance scale included)."""
+    (its tolerance scale included), tabulated up to ``top`` A."""
     coil: FluxCoil = lp.inductance
     scale = float(np.ravel(coil.scale)[0])
-    i = np.linspace(0.0, 3.0, TABLE)
+    i = np.linspace(0.0, top, TABLE)
     psi = scale * coil.curve.psi(i)
     pairs = [f"{float(p):.12e}, {float(c):.12e}" for p, c in zip(psi, i)]
     rows = [", ".join(pairs[k:k + 6]) for k in range(0, len(pairs), 6)]

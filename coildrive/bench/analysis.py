@@ -526,7 +526,10 @@ def _measure(rd: _Reader, cut: _Cut, number: int, lv: _Levels, sense: str,
         res["peak_duration_s"] = (idx[peak_end] - 0.5) / fs - t_on
     else:
         notes.append("no start of the hold found: peak duration not measured")
-    smooth_c = _denoise(c, lv.sigma)
+    # the average runs on into the samples after the peak (up to half its widest window):
+    # padded with its last full window instead, a short peak's last samples would lag the
+    # current by half a window and hide a pull-in reached just before the peak ends
+    smooth_c = _denoise(rd.c[on:min(pe + 7, n)], lv.sigma)[:pe - on]
     if pull_in is not None:
         hit = _level_time(t, smooth_c, pull_in / apc, True, 1.0 / fs)
         if hit is None:

@@ -39,7 +39,9 @@ the capacitor's voltage at its switch-on; from the conversion that turns it off,
 main supply's RL rise. The capacitor starts charged to the boost's nominal voltage and
 between peaks recharges at ``boost_power`` (:func:`coildrive.model.boost.recharge_voltage`);
 the main supply's diode taking over below the bus is left out (the design's
-``boost_droop`` check keeps the capacitor above it).
+``boost_droop`` check keeps the capacitor above it). On a flux-linkage curve the boost's
+run is :mod:`coildrive.model.flux_boost`'s, stepped from the current and the capacitor's
+voltage at its switch-on.
 
 A full bridge's mixed-decay hold (``hold.fast_fraction``): each off-time decays through
 the fast path (all four open) up to the timer count the driver gives through its
@@ -465,10 +467,11 @@ class FirmwareDevice(LineOutput):
         flight = self._flight_t0
         #: the boost switch on from the period's start: the capacitor at its voltage then
         boosting = self._boost is not None and bool(enable) and bool(out >> 26 & 1)
+        bm = boost_model.of(self._boost) if self._boost is not None else boost_model
         boost = None
         if boosting:
             b = self._boost
-            boost = boost_model.Boost(np.asarray(self.boost_voltage(t0)), b.c, b.r, b.l, b.g_e)
+            boost = boost_model.with_voltage(b, self.boost_voltage(t0))
         #: the time the driver turns the boost off within this period, s
         boost_cut: list[float] = []
         #: a peak that starts at this period's conversion: (its time s, current A, boost)
@@ -482,9 +485,9 @@ class FirmwareDevice(LineOutput):
             if boost is None:
                 return rise_current(x - t0, i0, on.v_on, on.r_on, on.inductance)
             if not boost_cut:
-                return boost_model.state(x - t0, boost, i0)[0]
-            i_cut = boost_model.state(boost_cut[0] - t0, boost, i0)[0]
-            return np.where(x <= boost_cut[0], boost_model.state(np.minimum(x, boost_cut[0]) - t0, boost, i0)[0],
+                return bm.state(x - t0, boost, i0)[0]
+            i_cut = bm.state(boost_cut[0] - t0, boost, i0)[0]
+            return np.where(x <= boost_cut[0], bm.state(np.minimum(x, boost_cut[0]) - t0, boost, i0)[0],
                             rise_current(np.maximum(x - boost_cut[0], 0.0), i_cut, on.v_on, on.r_on, on.inductance))
 
         def terminal_current(x, i_m):
@@ -504,12 +507,12 @@ class FirmwareDevice(LineOutput):
             on_term = eddy.terminal(i_m, on.v_on, on.r_on, e.resistance)
             if boost is not None:            # fed from the boost capacitor until its switch opens
                 end = boost_cut[0] if boost_cut else np.inf
-                v_c = boost_model.state(np.minimum(x, end) - t0, boost, i0)[1]
-                on_term = np.where(x <= end, boost_model.terminal(i_m, v_c, boost), on_term)
+                v_c = bm.state(np.minimum(x, end) - t0, boost, i0)[1]
+                on_term = np.where(x <= end, bm.terminal(i_m, v_c, boost), on_term)
             term = np.where(x <= on_end, on_term, off)
             if late is not None:             # a peak from this period's conversion on
-                v_c = boost_model.state(np.maximum(x - late[0], 0.0), late[2], late[1])[1]
-                term = np.where(x >= late[0], boost_model.terminal(i_m, v_c, late[2]), term)
+                v_c = bm.state(np.maximum(x - late[0], 0.0), late[2], late[1])[1]
+                term = np.where(x >= late[0], bm.terminal(i_m, v_c, late[2]), term)
             return term
 
         #: a full bridge's slow decay that the driver ends at the conversion (all four open):
@@ -572,14 +575,13 @@ class FirmwareDevice(LineOutput):
             # the peak's start: the boost and the switch go on at once in this conversion
             # (its ON event's moment), the capacitor from where its recharge has it
             b = self._boost
-            late = (s, float(current(s)), boost_model.Boost(np.asarray(self.boost_voltage(s)), b.c, b.r, b.l,
-                                                            b.g_e))
+            late = (s, float(current(s)), boost_model.with_voltage(b, self.boost_voltage(s)))
             off_current = current
 
             def current(x):                 # noqa: F811 -- this period's current from here on
                 x = np.asarray(x, float)
                 return np.where(x < s, off_current(x),
-                                boost_model.state(np.maximum(x - s, 0.0), late[2], late[1])[0])
+                                bm.state(np.maximum(x - s, 0.0), late[2], late[1])[0])
         self._outputs = new
         if self._mixed:
             self._fast_end = int(self.lib.fil_fast_end())   # the next period's
@@ -589,10 +591,10 @@ class FirmwareDevice(LineOutput):
         self._i = float(current(t0 + T))
         if boosting:                        # where the capacitor stands when its switch is next off
             end = boost_cut[0] if boost_cut else t0 + T
-            self._boost_v = float(boost_model.state(min(end, on_end) - t0, boost, i0)[1])
+            self._boost_v = float(bm.state(min(end, on_end) - t0, boost, i0)[1])
             self._boost_t = end
         elif late is not None:
-            self._boost_v = float(boost_model.state(t0 + T - late[0], late[2], late[1])[1])
+            self._boost_v = float(bm.state(t0 + T - late[0], late[2], late[1])[1])
             self._boost_t = t0 + T
         if self.trace is not None:      # the period's mean: midpoint rule, 64 points
             x = t0 + (np.arange(64) + 0.5) * (T / 64)

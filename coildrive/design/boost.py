@@ -32,8 +32,9 @@ from .result import BoostResult, Check
 
 def at_boost(drive: Drive, v_b, c, r_on, inductance) -> model.Boost:
     """The boost of ``v_b`` V on ``c`` F feeding the on-loop ``r_on`` ohm (the boost path's
-    own resistance added) and the coil ``inductance`` (H, or an
-    :class:`~coildrive.model.eddy.EddyCoil`: its magnetising branch and eddy resistance)."""
+    own resistance added) and the coil ``inductance`` (H, an
+    :class:`~coildrive.model.eddy.EddyCoil`: its magnetising branch and eddy resistance, or
+    a :class:`~coildrive.model.flux.FluxCoil`: :mod:`coildrive.model.flux_boost`'s)."""
     r_e = None
     if isinstance(inductance, EddyCoil):
         inductance, r_e = inductance.magnetising, inductance.resistance
@@ -49,17 +50,20 @@ def _boost(drive: Drive, lp, inductance, high: bool) -> model.Boost:
 
 def rise_time(drive: Drive, lp, i_target, inductance) -> np.ndarray:
     """Time (s) to ``i_target`` A from the boost at its lowest, at the points of ``lp``."""
-    return model.threshold_time(i_target, _boost(drive, lp, inductance, False))
+    b = _boost(drive, lp, inductance, False)
+    return model.of(b).threshold_time(i_target, b)
 
 
 def rise_current(drive: Drive, lp, t, inductance) -> np.ndarray:
     """Current (A) ``t`` s after switch-on from the boost at its lowest."""
-    return model.state(t, _boost(drive, lp, inductance, False))[0]
+    b = _boost(drive, lp, inductance, False)
+    return model.of(b).state(t, b)[0]
 
 
 def steady_current(drive: Drive, lp) -> np.ndarray:
     """The most current the boost at its lowest drives (A): its first maximum, or ``V/R``."""
-    return model.highest_current(_boost(drive, lp, lp.inductance, False))
+    b = _boost(drive, lp, lp.inductance, False)
+    return model.of(b).highest_current(b)
 
 
 def threshold(drive: Drive) -> tuple[float, int, float]:
@@ -96,7 +100,7 @@ def firmware_peak(design, supply: float, coil_temp: float, r_factor: float = 1.0
     s = drive.supply
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
     b = at_boost(drive, s.boost, s.boost_capacitance, lp.r_on, lp.inductance)
-    t = float(model.threshold_time(nominal_trip(drive), b, sensed=True))
+    t = float(model.of(b).threshold_time(nominal_trip(drive), b, sensed=True))
     return min(t, design.pull_in.peak_time_s or 0.0)
 
 
@@ -113,7 +117,7 @@ def _seen(drive: Drive, b: model.Boost) -> np.ndarray:
     """When the firmware sees the threshold at the latest (s; ``inf`` where never): the
     highest trip current (the chain reading low), one conversion late. (With an eddy
     term the sense sees the terminal current, which leads the magnetising current.)"""
-    return model.threshold_time(threshold(drive)[2], b, sensed=True) + 1.0 / drive.board.adc.sample_rate
+    return model.of(b).threshold_time(threshold(drive)[2], b, sensed=True) + 1.0 / drive.board.adc.sample_rate
 
 
 def slowest_peak(drive: Drive, lp) -> np.ndarray:
@@ -129,7 +133,8 @@ def earliest_trip(drive: Drive, lp) -> np.ndarray:
     trips). With an eddy term the terminal current leads the magnetising current, so the
     flux's current at the end of the peak is below the threshold (the ``pull_in_force``
     check takes it there)."""
-    return model.threshold_time(threshold(drive)[0], _boost(drive, lp, lp.inductance, False), sensed=True)
+    b = _boost(drive, lp, lp.inductance, False)
+    return model.of(b).threshold_time(threshold(drive)[0], b, sensed=True)
 
 
 def peak_heat(drive: Drive, lp, peak_time) -> np.ndarray:
@@ -143,7 +148,8 @@ def peak_heat(drive: Drive, lp, peak_time) -> np.ndarray:
     for high in (False, True):
         b = _boost(drive, lp, lp.inductance, high)
         t = np.minimum(_seen(drive, b), peak_time)
-        heat = np.maximum(heat, lp.r_coil * model.square_integral(t, b) + model.eddy_loss(t, b))
+        m = model.of(b)
+        heat = np.maximum(heat, lp.r_coil * m.square_integral(t, b) + m.eddy_loss(t, b))
     return heat
 
 
@@ -163,7 +169,7 @@ def sampled_pull_in(drive: Drive, res, v_factor, c_factor):
     lp = res.loop
     b = at_boost(drive, s.boost * np.asarray(v_factor, float), s.boost_capacitance * np.asarray(c_factor, float),
                  lp.r_on, lp.inductance)
-    return dataclasses.replace(res, pull_in_time=model.threshold_time(drive.pull_in.current, b))
+    return dataclasses.replace(res, pull_in_time=model.of(b).threshold_time(drive.pull_in.current, b))
 
 
 def end_current(drive: Drive, lp) -> np.ndarray:
@@ -172,8 +178,9 @@ def end_current(drive: Drive, lp) -> np.ndarray:
     what the switch interrupts)."""
     b = _boost(drive, lp, lp.inductance, True)
     t = _seen(drive, b)
-    return np.where(np.isfinite(t), model.current(np.where(np.isfinite(t), t, 0.0), b, sensed=True),
-                    model.highest_current(b, sensed=True))
+    m = model.of(b)
+    return np.where(np.isfinite(t), m.current(np.where(np.isfinite(t), t, 0.0), b, sensed=True),
+                    m.highest_current(b, sensed=True))
 
 
 def handover(drive: Drive, lp) -> tuple[np.ndarray, np.ndarray]:
@@ -251,23 +258,24 @@ def boost_result(drive: Drive, grid: CornerGrid, res, rate: float) -> BoostResul
     t_slow = _seen(drive, slow)            # the longest peak at each point
     finite = np.isfinite(t_slow)
     reached = bool(np.all(finite))
-    reachable = model.highest_current(slow, sensed=True)
+    m = model.of(slow)
+    reachable = m.highest_current(slow, sensed=True)
     # the worst corner: the longest peak, or where the boost drives the least
     k_slow = int(np.argmax(t_slow) if reached else np.argmin(reachable))
-    t_fast = model.threshold_time(i_th, fast, sensed=True)
+    t_fast = m.threshold_time(i_th, fast, sensed=True)
     k_fast = int(np.argmin(t_fast))
     # slow side: the capacitor at the end of the peak (its lowest, while the boost alone
     # feeds the coil)
     t_low = np.where(finite, t_slow, 0.0)
-    v_low = model.state(t_low, slow)[1]
+    v_low = m.state(t_low, slow)[1]
     headroom = np.where(finite, v_low - np.asarray(res.supply, float), -np.inf)
     k_low = int(np.argmin(headroom))
     # fast side: the most current, energy and switch voltage
     t_end = _seen(drive, fast)
-    t_end = np.where(np.isfinite(t_end), t_end, model.peak_time(fast, sensed=True))
-    i_m_end, v_end = model.state(t_end, fast)
-    i_end = model.terminal(i_m_end, v_end, fast)
-    energy = np.maximum(model.energy_drawn(t_end, fast), model.energy_drawn(t_low, slow))
+    t_end = np.where(np.isfinite(t_end), t_end, m.peak_time(fast, sensed=True))
+    i_m_end, v_end = m.state(t_end, fast)
+    i_end = m.terminal(i_m_end, v_end, fast)
+    energy = np.maximum(m.energy_drawn(t_end, fast), m.energy_drawn(t_low, slow))
     k_e, k_i = int(np.argmax(energy)), int(np.argmax(i_end))
     v_top = s.boost * (1.0 + s.boost_tolerance)
     rel = _release_loop(res)

@@ -50,16 +50,23 @@ switch-on step ``V_b/(R + R_e)``. The copper's ``int i^2 dt`` of the terminal cu
 and ``A P + P A^T = -x(0) x(0)^T`` (a 2x2 Lyapunov equation, solved exactly). An ideal
 boost with an eddy term is the eddy coil's RL rise (:func:`coildrive.model.eddy.thevenin`).
 
+A saturating coil (a flux-linkage curve) in place of ``L`` is
+:mod:`coildrive.model.flux_boost`'s, with the same functions; :func:`of` names the module
+that answers for a boost.
+
 Physics only; SI units (A, V, ohm, H, F, s, J, W); every function broadcasts over arrays.
 """
 
 from __future__ import annotations
 
+import dataclasses
+import sys
 from dataclasses import dataclass
 
 import numpy as np
 
-from . import linear2, rlc
+from . import flux_boost, linear2, rlc
+from .flux import FluxCoil
 from .rl import rise_current, rise_time
 
 #: Bisection steps for the threshold time: the bracket shrinks 2^-60, far below a tick.
@@ -103,11 +110,27 @@ class Boost:
         return np.where(self.c > 0, self.c, 1.0)
 
 
-def boost(v_b, c, r, l, r_e=None) -> Boost:
+def boost(v_b, c, r, l, r_e=None):
     """The boost of the module docstring at each point, with an eddy resistance ``r_e``
-    ohm across the magnetising branch ``l`` H (``None``: none)."""
+    ohm across the magnetising branch ``l`` H (``None``: none); ``l`` a
+    :class:`~coildrive.model.flux.FluxCoil` gives :mod:`coildrive.model.flux_boost`'s
+    (no eddy term)."""
+    if isinstance(l, FluxCoil):
+        return flux_boost.boost(v_b, c, r, l)
     g_e = 0.0 if r_e is None else 1.0 / np.asarray(r_e, float)
     return Boost(*np.broadcast_arrays(*(np.asarray(x, float) for x in (v_b, c, r, l, g_e))))
+
+
+def with_voltage(b, v_b):
+    """The boost ``b`` (this module's or :mod:`coildrive.model.flux_boost`'s) charged to
+    ``v_b`` V at its switch-on instead."""
+    return dataclasses.replace(b, v_b=np.broadcast_to(np.asarray(v_b, float), np.shape(b.v_b)) + 0.0)
+
+
+def of(b):
+    """The module that answers for the boost ``b``: :mod:`coildrive.model.flux_boost` for a
+    saturating coil's, else this one."""
+    return flux_boost if isinstance(b, flux_boost.FluxBoost) else sys.modules[__name__]
 
 
 def state(t, b: Boost, i0=0.0) -> tuple[np.ndarray, np.ndarray]:
@@ -277,8 +300,9 @@ def voltage_trace(t, peak_end: float, b: Boost, power: float) -> np.ndarray:
     t = np.asarray(t, float)
     if bool(np.all(b.ideal)):
         return np.full(t.shape, float(b.v_b))
-    v_during = state(np.minimum(t, peak_end), b)[1]
-    v_end = float(state(peak_end, b)[1])
+    m = of(b)
+    v_during = m.state(np.minimum(t, peak_end), b)[1]
+    v_end = float(m.state(peak_end, b)[1])
     after = recharge_voltage(v_end, np.maximum(t - peak_end, 0.0), float(b.c), power, float(b.v_b))
     return np.where(t <= peak_end, v_during, after)
 

@@ -37,6 +37,18 @@ How it is stepped, and why:
   one fixed grid serves every corner in one pass (no per-point calls, no scipy import on
   the design's path), and ETDRK4 is not among scipy's methods.
 
+**A capacitor with no source** (:func:`capacitor`: a boost capacitor charged to ``V_b``
+discharging into the coil, :mod:`coildrive.model.flux_boost`)::
+
+    L_d(i) di/dt = v - R i,    C dv/dt = -i,    i(0) = 0, v(0) = V_b
+
+is the same stepper with the source's terms taken out: the bus is stepped as itself
+(``w = v``, no decay of its own, so ETDRK4's weights are those of the classical
+fourth-order Runge-Kutta method on both states), and its rate is ``-i/C``. Its
+stretches (:func:`_phases`) come from the linear series RLC circuit at the curve's
+largest incremental inductance below ``V_b/R`` (:func:`coildrive.model.rlc.first_peak`):
+the rise to the first current maximum, then as long again and more.
+
 The current is the coil current (the step response of this passive circuit rises to its
 first maximum; the record holds the whole horizon, so a later crossing is found too).
 
@@ -70,6 +82,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from . import rlc
 from .flux import FluxCoil
 # the coil's terminal current k (i_m + g_e v) from a bus's g_e and r: the same for this one
 from .supply import terminal  # noqa: F401
@@ -142,7 +155,9 @@ class FluxBus:
     ``i_ss`` A the steady current ``V_s/(R + R_s)``. The run is made on first use. With an
     eddy term (:func:`bus`) ``v_s``, ``r_s``, ``c`` and ``coil`` are the equivalent plain
     circuit's (module docstring), ``g_e`` S the eddy conductance (0: none) and ``v0`` V the
-    bus at switch-on (``None``: ``v_s``, the capacitor charged to the source)."""
+    bus at switch-on (``None``: ``v_s``, the capacitor charged to the source). Not ``fed``:
+    a capacitor with no source (:func:`capacitor`; ``v_s`` its starting voltage, ``r_s`` 0,
+    ``i_ss`` the bound ``V_b/R``)."""
 
     v_s: np.ndarray
     r_s: np.ndarray
@@ -150,6 +165,7 @@ class FluxBus:
     r: np.ndarray
     coil: FluxCoil
     i_ss: np.ndarray
+    fed: bool = True
     _run: list = field(default_factory=list, repr=False)
     g_e: np.ndarray | float = 0.0
     v0: np.ndarray | None = None
@@ -196,8 +212,25 @@ def bus(v_s, r_s, c, r, coil: FluxCoil, r_e=None) -> FluxBus:
     hit = _CACHE.get(key)
     if hit is not None and hit.coil.curve is coil.curve:
         return hit
-    fb = equivalent(v_s, r_s, c, r, coil.with_scale(scale.copy()),
-                    None if r_e is None else np.broadcast_to(np.asarray(r_e, float), v_s.shape))
+    return _keep(key, equivalent(v_s, r_s, c, r, coil.with_scale(scale.copy()),
+                                 None if r_e is None else np.broadcast_to(np.asarray(r_e, float), v_s.shape)))
+
+
+def capacitor(v_0, c, r, coil: FluxCoil) -> FluxBus:
+    """A capacitor of ``c`` F (> 0) charged to ``v_0`` V, with no source, discharging into
+    the loop of ``r`` ohm and the saturating ``coil`` from ``i = 0`` (module docstring);
+    cached as :func:`bus`."""
+    v_s, c, r, scale = np.broadcast_arrays(*(np.asarray(x, float) for x in (v_0, c, r, coil.scale)))
+    key = (id(coil.curve), "capacitor", v_s.shape, *(x.tobytes() for x in (v_s, c, r, scale)))
+    hit = _CACHE.get(key)
+    if hit is not None and hit.coil.curve is coil.curve:
+        return hit
+    return _keep(key, FluxBus(v_s.copy(), np.zeros_like(v_s), c.copy(), r.copy(), coil.with_scale(scale.copy()),
+                              v_s / r, False))
+
+
+def _keep(key, fb: FluxBus) -> FluxBus:
+    """``fb``, kept in the cache under ``key`` (the oldest dropped when it is full)."""
     if len(_CACHE) >= CACHE_SIZE:
         _CACHE.pop(next(iter(_CACHE)))
     _CACHE[key] = fb
@@ -235,7 +268,10 @@ def _phases(fb: FluxBus) -> list[tuple[int, np.ndarray]]:
     :data:`PER_TIME_CONSTANT` per fastest coil time constant and per LC ringing period
     (at the smallest incremental inductance), at least :data:`STEPS`. A bus that starts off
     the slaved one (an eddy term's, ``v0``) first takes :data:`SETTLE_STEPS` over
-    :data:`SETTLE` ``R_s C`` (at most a tenth of the rise), then the rest of the rise."""
+    :data:`SETTLE` ``R_s C`` (at most a tenth of the rise), then the rest of the rise. A
+    capacitor with no source: :func:`_capacitor_phases`."""
+    if not fb.fed:
+        return _capacitor_phases(fb)
     cv = fb.coil.curve
     s = fb.coil.scale
     i_ss = fb.i_ss
@@ -256,6 +292,47 @@ def _phases(fb: FluxBus) -> list[tuple[int, np.ndarray]]:
     return [(SETTLE_STEPS, settle / SETTLE_STEPS), (RISE_STEPS, (rise - settle) / RISE_STEPS), tail]
 
 
+def _capacitor_phases(fb: FluxBus) -> list[tuple[int, np.ndarray]]:
+    """A capacitor's two stretches (module docstring): with ``L_hi`` the largest and
+    ``L_lo`` the smallest incremental inductance below ``V_b/R``, the linear circuit's
+    first current maximum ``t_p`` at ``L_hi`` bounds the rise's time scale; the rise is
+    ``2 t_p``, the rest ``4 t_p`` more. Steps: at most a :data:`PER_TIME_CONSTANT`-th of
+    ``L_lo/R`` and of the LC period at ``L_lo``, and at most the least time the current
+    can take through a table piece (its width x its least ``L_d`` / ``V_b``: ``di/dt <=
+    V_b / L_d``), so that a step's polynomial is never carried past the next piece;
+    :data:`RISE_STEPS` and :data:`STEPS` at least, :data:`MAX_STEPS` at most (the rise then
+    ends sooner, the rest takes longer steps)."""
+    cv, scale = fb.coil.curve, fb.coil.scale
+    grid = np.linspace(0.0, 1.0, 65).reshape((-1,) + (1,) * fb.i_ss.ndim) * fb.i_ss
+    ld = scale * cv.incremental(grid)
+    l_hi, l_lo = ld.max(axis=0), ld.min(axis=0)
+    t_p = rlc.first_peak(-fb.c * fb.v_s, 0.0, fb.r, l_hi, fb.c)
+    h = np.minimum(l_lo / fb.r, 2.0 * np.pi * np.sqrt(l_lo * fb.c)) / PER_TIME_CONSTANT
+    h = np.minimum(h, piece_time(fb.coil, fb.v_s, fb.i_ss))
+    out, done = [], 0.0
+    for span, least in ((2.0 * t_p, RISE_STEPS), (6.0 * t_p, STEPS)):
+        steps = int(np.clip(np.max(np.ceil((span - done) / h)), least, MAX_STEPS))
+        dt = np.minimum((span - done) / steps, h) if not out else (span - done) / steps
+        out.append((steps, dt))
+        done = done + steps * dt
+    return out
+
+
+def piece_time(coil: FluxCoil, v_top, i_top) -> np.ndarray:
+    """The least time (s, per point) the current can take through a table piece that
+    starts below ``i_top`` A, with at most ``v_top`` V across the coil: the piece's width x
+    its least incremental inductance / ``v_top`` (``di/dt <= v / L_d``); ``inf`` where no
+    piece starts below ``i_top`` (the straight extension above the table: constant
+    ``L_d``)."""
+    cv = coil.curve
+    i_top = np.asarray(i_top, float)
+    width = np.diff(cv.current)
+    inside = cv.current[:-1, None] + width[:, None] * np.linspace(0.0, 1.0, 9)[None, :]
+    least = (width * cv.incremental(inside).min(axis=1)).reshape((-1,) + (1,) * i_top.ndim)
+    below = cv.current[:-1].reshape(least.shape) < i_top
+    return coil.scale * np.where(below, least, np.inf).min(axis=0) / np.asarray(v_top, float)
+
+
 def run(fb: FluxBus, phases=None, start: Record | None = None) -> Record:
     """Step the circuit over ``phases`` (``[(steps, step length s per point)]``, default
     :func:`_phases`) from switch-on, or on from the last row of ``start`` (an earlier
@@ -267,7 +344,11 @@ def run(fb: FluxBus, phases=None, start: Record | None = None) -> Record:
     top = np.append(cv.current, np.inf)[1:]          # piece k spans base[k] .. top[k]
     last = base.size - 1
     scale, r, r_s, c, v_s = fb.coil.scale, fb.r, fb.r_s, fb.c, fb.v_s
-    lam = -1.0 / (r_s * c)                            # the bus's own decay, 1/s
+    if fb.fed:
+        lam = -1.0 / (r_s * c)                        # the bus's own decay, 1/s
+        drain = np.zeros_like(c)
+    else:                                             # a capacitor alone: w = v, dv/dt = -i/C
+        v_s, lam, drain = np.zeros_like(v_s), np.zeros_like(c), 1.0 / c
     g = r + r_s
 
     def piece(k):
@@ -279,7 +360,7 @@ def run(fb: FluxBus, phases=None, start: Record | None = None) -> Record:
         """``(di/dt, dw/dt without w's own decay)`` with piece ``p``'s polynomial."""
         d = i - p[0]
         di = (v_s - g * i + w) / ((p[2] * d + p[3]) * d + p[4])
-        return di, r_s * di
+        return di, r_s * di - drain * i
 
     def weights(h):
         z = lam * h
@@ -302,12 +383,16 @@ def run(fb: FluxBus, phases=None, start: Record | None = None) -> Record:
                 e * w + h * (f1 * nw0 + 2 * f2 * (nwa + nwb) + f3 * nwc))
 
     def row(t, i, w, n0):
-        """A record row: the bus ``v = V_s - R_s i + w`` and its rate ``-w/(R_s C)``."""
-        return t, i, v_s - r_s * i + w, n0[0], lam * w
+        """A record row: the bus ``v = V_s - R_s i + w`` and its rate ``-w/(R_s C)`` (a
+        capacitor alone: ``v = w``, its rate ``-i/C``)."""
+        return t, i, v_s - r_s * i + w, n0[0], lam * w - drain * i
 
     if start is None:
         t, i, k = np.zeros_like(v_s), np.zeros_like(v_s), np.zeros(v_s.shape, int)
-        w = np.zeros_like(v_s) if fb.v0 is None else fb.v0 - v_s
+        if not fb.fed:          # a capacitor alone: w is its voltage
+            w = fb.v_s.copy()
+        else:
+            w = np.zeros_like(v_s) if fb.v0 is None else fb.v0 - v_s
     else:
         t, i, k = start.t[-1], start.i[-1], start.k
         w = start.v[-1] - v_s + r_s * i

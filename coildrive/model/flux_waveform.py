@@ -9,7 +9,8 @@ currents; a current after a time is read back from the table. The hold's per-per
 start currents follow by the same scalar recurrence as the linear coil's. On a drooping
 bus (``supply.source_resistance``) the peak is :mod:`coildrive.model.flux_bus`'s; the
 hold that follows sees the stiff supply, as :func:`coildrive.model.waveform.peak_samples`
-has it.
+has it. A boosted peak (``supply.boost``) runs from the boost at its nominal
+(:mod:`coildrive.model.flux_boost`); the hold from the main supply.
 """
 
 from __future__ import annotations
@@ -17,7 +18,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..config import Drive
-from . import flux, flux_bus
+from . import flux, flux_boost, flux_bus
 from .circuit import Loop
 
 #: Currents tabulated per segment kind.
@@ -27,7 +28,9 @@ GRID = 20_000
 class Track:
     """Both segment kinds of one operating point, tabulated: on (``v_on`` V through
     ``r_on``) and off (against ``v_off`` V through ``r_off``), for currents up to
-    ``top`` A (and up to the on-loop's asymptote ``v_on / r_on``)."""
+    ``top`` A (and up to the on-loop's asymptote ``v_on / r_on``). Where ``top`` lies
+    above the asymptote (the hold after a boosted peak), the on-loop's fall from there
+    towards it is tabulated too."""
 
     def __init__(self, coil: flux.FluxCoil, v_on: float, r_on: float, r_off: float,
                  v_off: float, top: float):
@@ -36,6 +39,13 @@ class Track:
         self.i_on = np.concatenate([np.linspace(0.0, near[0], GRID, endpoint=False), near])
         dt = flux.time(coil, self.i_on[:-1], self.i_on[1:], v_on, r_on)
         self.t_on = np.concatenate([[0.0], np.cumsum(dt)])
+        self.a = a
+        self.i_above = None
+        if top > a:   # falling from above towards the asymptote (i_above falls)
+            near = a * (1.0 + np.logspace(-3, -13, 400))
+            self.i_above = np.concatenate([np.linspace(top * 1.001, near[0], GRID, endpoint=False), near])
+            dt = flux.time(coil, self.i_above[:-1], self.i_above[1:], v_on, r_on)
+            self.t_above = np.concatenate([[0.0], np.cumsum(dt)])
         hi = max(top, a) * 1.001
         self.i_off = np.linspace(0.0, hi, GRID + 1)
         dt = flux.time(coil, self.i_off[1:], self.i_off[:-1], -v_off, r_off)
@@ -43,9 +53,15 @@ class Track:
         self.t_off = np.concatenate([np.cumsum(dt[::-1])[::-1], [0.0]])
 
     def rise(self, i0, t):
-        """Current A after ``t`` s on from ``i0`` A."""
+        """Current A after ``t`` s on from ``i0`` A (falling towards ``v_on / r_on`` from
+        above it)."""
         start = np.interp(i0, self.i_on, self.t_on)
-        return np.interp(start + t, self.t_on, self.i_on)
+        up = np.interp(start + t, self.t_on, self.i_on)
+        if self.i_above is None:
+            return up
+        start = np.interp(i0, self.i_above[::-1], self.t_above[::-1])
+        down = np.interp(start + t, self.t_above, self.i_above)
+        return np.where(np.asarray(i0) > self.a, down, up)
 
     def decay(self, i0, t):
         """Current A after ``t`` s off from ``i0`` A (zero once it gets there)."""
@@ -95,7 +111,13 @@ def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: 
     v, r_on, r_off, v_off = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off))
     big = 40 * points
     tp = np.linspace(0.0, peak_time, big + 1)
-    if drive.supply.droops:   # the peak on the drooping bus (model/flux_bus.py)
+    if drive.supply.boosted:   # the peak from the boost at its nominal (model/flux_boost.py)
+        s = drive.supply
+        b = flux_boost.boost(s.boost, s.boost_capacitance, r_on + s.boost_resistance, coil)
+        rise = flux_boost.state(tp, b)[0]
+        peak_end = float(rise[-1])
+        tr = Track(coil, v, r_on, r_off, v_off, peak_end)
+    elif drive.supply.droops:   # the peak on the drooping bus (model/flux_bus.py)
         s = drive.supply
         fb = flux_bus.bus(v, s.source_resistance, s.capacitance, r_on, coil)
         rise = flux_bus.current(tp, fb)

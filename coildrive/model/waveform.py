@@ -146,12 +146,12 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
 
         coil = one_point(lp.inductance)
         v, r_on, r_off = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off))
-        tp = np.linspace(0.0, peak_time, 40 * points + 1)
-        peak = rise_current(tp, 0.0, v, r_on, coil)
-        seg = segments_of(coil, v, r_on, r_off, lp.mixed, float(peak[-1]))
-        return _mixed_actuation(drive, lp, supply, coil_temp, peak_time, float(peak[-1]), duty, frequency,
-                                hold_time, r_factor, l_factor, points, label, [tp], [peak],
-                                [np.ones_like(tp)], seg)
+        ts, cs, ons = [], [], []
+        i0 = peak_samples(peak_time, v, r_on, coil, 40 * points, ts, cs, ons, drive)
+        seg = segments_of(coil, v, r_on, r_off, lp.mixed, i0)
+        return boost_columns(drive, _mixed_actuation(drive, lp, supply, coil_temp, peak_time, i0, duty, frequency,
+                                                     hold_time, r_factor, l_factor, points, label, ts, cs,
+                                                     ons, seg), supply, peak_time, r_on, coil)
     if isinstance(lp.inductance, FluxCoil):   # a saturating coil: its own sampling
         fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") if full_bridge(drive) else lp
         return _flux_actuation(drive, lp, supply, peak_time, duty, frequency, hold_time,
@@ -224,7 +224,8 @@ def nominal_boost(drive: Drive, r_on: float, ind) -> boost_model.Boost:
     """The boost at its nominal voltage and capacitance feeding the on-loop ``r_on`` ohm
     (with the boost path's own resistance), ``ind`` H (or an
     :class:`~coildrive.model.eddy.EddyCoil` of one point: its magnetising branch and eddy
-    resistance)."""
+    resistance; or a :class:`~coildrive.model.flux.FluxCoil` of one point:
+    :mod:`coildrive.model.flux_boost`'s)."""
     s = drive.supply
     r_e = None
     if isinstance(ind, EddyCoil):
@@ -284,11 +285,12 @@ def _flux_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: flo
     on = np.concatenate(ons).astype(np.int8)
     v_sw, sense = _switch_and_sense(drive, lp, supply, current, on)
     events = {"on": 0.0, "hold": peak_time, "off": t_cut, "zero": t_cut + tz}
+    extra = node_columns(drive, supply, current, on, v_sw)   # a high-side switch's node
     if full_bridge(drive):
         v_sw = np.where(time > t_cut, _switch_and_sense(drive, release_lp, supply, current, on)[0], v_sw)
         v_sw, sense, extra = _bridge_columns(drive, supply, time, current, on, v_sw, t_cut)
-        return Waveform(time, current, on, v_sw, sense, events, label, **extra)
-    return Waveform(time, current, on, v_sw, sense, events, label)
+    return boost_columns(drive, Waveform(time, current, on, v_sw, sense, events, label, **extra), supply,
+                         peak_time, float(np.ravel(lp.r_on)[0]), one_point(lp.inductance))
 
 
 #: With an eddy term, the time between the rows before and after a switch edge (s).
@@ -374,7 +376,8 @@ def peak_samples(peak_time: float, v: float, r_on: float, ind: float, big: int,
     tp = np.linspace(0.0, peak_time, big + 1)
     ts.append(tp)
     if drive is not None and drive.supply.boosted:
-        cs.append(boost_model.state(tp, nominal_boost(drive, r_on, ind))[0])
+        b = nominal_boost(drive, r_on, ind)
+        cs.append(boost_model.of(b).state(tp, b)[0])
     elif drive is not None and drive.supply.droops:
         cs.append(bus_model.current(tp, bus_model.bus(v, drive.supply.source_resistance,
                                                       drive.supply.capacitance, r_on, ind)))
