@@ -1538,9 +1538,10 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
         raise InputError(fw_origins.get("split_decay", source), "freewheel.split_decay",
                          "a full bridge decays slowly in the hold and fast at the release by itself: "
                          "expected split_decay left out")
-    if hold.mode not in ("voltage", "latch"):
-        raise InputError(source, "hold.mode", f"{hold.mode!r} with a full bridge: coildrive designs a "
-                         "full bridge's hold in voltage mode only, expected mode = \"voltage\"")
+    if hold.mode == "current" and hold.fast_fraction > 0:
+        raise InputError(source, "hold.fast_fraction", f"{hold.fast_fraction:g} with hold.mode = "
+                         "\"current\": a full bridge's current-mode hold decays slowly (the two "
+                         "low-side switches), expected 0 or the key left out (mixed decay: mode = \"voltage\")")
     if not supply.sink and not supply.capacitance > 0:
         raise InputError(source, "supply.capacitance", "missing: with sink = false the returned "
                          "energy lands on the bulk capacitance, expected its value (e.g. \"470 uF\")")

@@ -119,6 +119,12 @@ class DriverView:
                              f"{self.regulation!r} after a boosted peak: this driver runs a boosted "
                              "peak before a fixed or supply-table hold only, expected those for "
                              "firmware-driver and emulate --firmware")
+        if self.bridge and self.regulation == "current":
+            raise InputError(d.drive.source or d.drive.name, "hold.mode",
+                             "'current' on a full bridge: this driver's threshold handlers switch "
+                             "one output (an off-time would open all four switches, a fast decay "
+                             "the design does not hold with), expected a fixed, supply-table or "
+                             "closed-loop hold on a bridge for firmware-driver and emulate --firmware")
         if self.regulation not in ("fixed", "supply_table", "current", "closed_loop"):
             raise InputError(d.drive.source or d.drive.name, "hold.regulation",
                              f"{self.regulation!r}: this driver runs the fixed, supply-table, "
