@@ -37,8 +37,10 @@ BRIDGE = EXAMPLES / "dosing-valve-bridge-24v.toml"
 CURRENT = ('frequency = "20 kHz"\n', 'frequency = "20 kHz"\nmode = "current"\n')
 
 
-def _variant(tmp_path, *edits, name="cm.toml", board=None):
-    text = BRIDGE.read_text().replace(*CURRENT, 1)
+def bridge_variant(tmp_path, hold_edit, *edits, name="v.toml", board=None):
+    """The bridge example with ``hold_edit`` and ``edits`` (each ``(old, new)``, once) on
+    ``board`` (default: the bundled bridge board, by path)."""
+    text = BRIDGE.read_text().replace(*hold_edit, 1)
     for old, new in edits:
         assert old in text, old
         text = text.replace(old, new, 1)
@@ -46,6 +48,10 @@ def _variant(tmp_path, *edits, name="cm.toml", board=None):
     path = tmp_path / name
     path.write_text(text.replace('board = "bridge-m32-fast"', f'board = "{board}"'))
     return path
+
+
+def _variant(tmp_path, *edits, name="cm.toml", board=None):
+    return bridge_variant(tmp_path, CURRENT, *edits, name=name, board=board)
 
 
 @pytest.fixture(scope="module")
@@ -56,7 +62,8 @@ def hysteretic(tmp_path_factory):
     return load_drive(path), path, json.loads(r.stdout)
 
 
-def _common_return_board(tmp_path):
+def common_return_board(tmp_path):
+    """The bundled bridge board with its sense resistor in the common return."""
     board = tmp_path / "bridge-return.toml"
     text = (BOARDS / "bridge-m32-fast.toml").read_text()
     old = 'position = "coil"     # inline with the coil: reads the current always'
@@ -113,7 +120,7 @@ def test_off_time_on_the_slow_path_against_solve_ivp(tmp_path):
 
     path = _variant(tmp_path, ('frequency = "20 kHz"\nmode = "current"\n',
                                'frequency = "20 kHz"\nmode = "current"\ncontrol = "off_time"\n'),
-                    board=_common_return_board(tmp_path))
+                    board=common_return_board(tmp_path))
     drive = load_drive(path)
     d = design(drive).to_dict()
     cm = d["current_mode"]
@@ -155,24 +162,14 @@ def test_simulate_switches_the_slow_decay_in_the_hold_and_the_fast_at_the_releas
     between the thresholds; after the final turn-off all four are open and the current
     falls to the drop-out current in the fast release's time (written out as above)."""
     drive, path, d = hysteretic
-    csv = tmp_path / "w.csv"
-    r = run_cli("simulate", str(path), "--supply", "24", "--coil-temp", "20", "--hold-time", "20 ms",
-                "--csv", str(csv))
-    assert r.returncode == 0, r.stderr
-    w = np.genfromtxt(csv, delimiter=",", names=True)
+    w, t_off, settled = simulated_phases(path, tmp_path)
     t, i, on = w["time_s"], w["current_a"], w["switch_on"]
     cm = d["current_mode"]
-    peak = d["pull_in"]["peak_time_s"]
-    t_off = t[np.flatnonzero(on == 1)[-1]]
-    settled = (t > peak + 15e-3) & (t < t_off)
     assert np.all(i[settled] >= cm["lower_a"] * (1 - 1e-9)) and np.all(i[settled] <= cm["upper_a"] * (1 + 1e-9))
     off = settled & (on == 0)
-    assert off.sum() > 50 and np.all(w["low_a_on"][off] == 1) and np.all(w["high_a_on"][off] == 0)
-    assert np.all(w["low_b_on"][settled] == 1) and np.all(w["high_a_on"][settled & (on == 1)] == 1)
     sw, rs = drive.switch.on_resistance, drive.board.sense.resistance
     assert w["coil_voltage_v"][off] == pytest.approx(-(2 * sw + rs) * i[off], rel=1e-6)   # the CSV's 7 digits
     after = t > t_off
-    assert np.all(w["high_a_on"][after] + w["low_a_on"][after] + w["high_b_on"][after] + w["low_b_on"][after] == 0)
     # the fast release from the current at the final turn-off (IEC 60028 copper at 20 degC: R_ref)
     i0, r, ell = float(i[t == t_off][0]), drive.coil.resistance, drive.coil.inductance
     big_b = (24.0 + 2 * drive.freewheel.diode_drop) / (r + rs)
@@ -181,16 +178,40 @@ def test_simulate_switches_the_slow_decay_in_the_hold_and_the_fast_at_the_releas
     assert t[k] - t_off == pytest.approx(t_drop, abs=float(t[k] - t[k - 1]))
 
 
+def simulated_phases(path, tmp_path):
+    """`coildrive simulate` of ``path`` at 24 V, 20 degC with a 20 ms hold (a subprocess):
+    ``(columns, final turn-off s, the last 5 ms of the hold)``, the bridge's phases checked:
+    every off-time there Q2 + Q4 (slow decay), every on-time Q1 + Q4, all four open after."""
+    csv = tmp_path / "w.csv"
+    r = run_cli("simulate", str(path), "--supply", "24", "--coil-temp", "20", "--hold-time", "20 ms",
+                "--csv", str(csv))
+    assert r.returncode == 0, r.stderr
+    w = np.genfromtxt(csv, delimiter=",", names=True)
+    t, on = w["time_s"], w["switch_on"]
+    t_off = t[np.flatnonzero(on == 1)[-1]]
+    settled = (t > t_off - 5e-3) & (t < t_off)
+    off = settled & (on == 0)
+    assert off.sum() > 50 and np.all(w["low_a_on"][off] == 1) and np.all(w["high_a_on"][off] == 0)
+    assert np.all(w["low_b_on"][settled] == 1) and np.all(w["high_a_on"][settled & (on == 1)] == 1)
+    after = t > t_off
+    assert np.all(w["high_a_on"][after] + w["low_a_on"][after] + w["high_b_on"][after] + w["low_b_on"][after] == 0)
+    return w, t_off, settled
+
+
 def test_virtual_device_runs_it_and_check_passes(hysteretic, tmp_path):
-    """The virtual device (the design's model, the thresholds ending the segments) at the low
-    supply with the hottest coil and the high supply cold: `check` passes the hold and the
-    fast release; a coil 40 % over its resistance fails (the check can fail). Plumbing."""
+    """The virtual device (the design's model, the thresholds ending the segments). Plumbing."""
+    device_checks(design(hysteretic[0]), tmp_path)
+
+
+def device_checks(d, tmp_path):
+    """The virtual device of design ``d`` at the low supply with the hottest coil and the
+    high supply cold: `check` passes the hold and the fast release; a coil 40 % over its
+    resistance fails (the check can fail)."""
     from test_emulator_device import capture_of, run as run_device
     from coildrive.bench.check import check_capture
     from coildrive.bench.device import DeviceOptions, VirtualDevice
 
-    drive, _, _ = hysteretic
-    d = design(drive)
+    drive = d.drive
 
     def checked(supply, temp, **scales):
         dev = VirtualDevice(drive, DeviceOptions(noise_codes=1.0, seed=3, supply=supply, coil_temp=temp,
@@ -209,7 +230,7 @@ def test_virtual_device_runs_it_and_check_passes(hysteretic, tmp_path):
 
 @pytest.mark.parametrize("edit, key, fragment", [
     (('frequency = "20 kHz"\nmode = "current"\n', 'frequency = "20 kHz"\nmode = "current"\nfast_fraction = 0.3\n'),
-     "hold.fast_fraction", "current-mode hold decays slowly"),
+     "hold.fast_fraction", "regulated hold decays slowly"),
     (('capacitance = "220 uF"', 'source_resistance = "0.2 ohm"\ncapacitance = "220 uF"'),
      "hold.mode", "drooping bus"),
 ])

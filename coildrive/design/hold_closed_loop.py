@@ -99,10 +99,6 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     if samples > 0:
         raise InputError("--samples", "", "the Monte Carlo covers the fixed and supply-table holds "
                          "only (this drive has hold.regulation = \"closed_loop\")")
-    if drive.switch.topology == "full_bridge":
-        raise InputError(drive.source, "switch.topology", "'full_bridge': the closed-loop hold is "
-                         "designed for one switch (low- or high-side); use the fixed or "
-                         "supply-table hold on a bridge")
     if drive.pull_in.compensate:
         raise InputError(drive.source, "pull_in.compensate", "a supply-compensated peak is designed "
                          "for the fixed and supply-table holds; leave it out with regulation = "
