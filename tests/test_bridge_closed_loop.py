@@ -23,7 +23,8 @@ import numpy as np
 import pytest
 
 from conftest import BOARDS, require_tool, run_cli
-from test_bridge_current import bridge_variant, common_return_board, device_checks, simulated_phases
+from test_bridge_current import (bridge_variant, common_return_board, compiled_loop_checks, device_checks,
+                                 simulated_phases)
 from coildrive.config import load_drive
 from coildrive.design import design
 from coildrive.errors import InputError
@@ -179,18 +180,8 @@ def test_compiled_driver_in_the_loop_holds_the_set_point(cl, tmp_path):
     """gcc builds the reference driver (its PI loop, the bridge's masks) and the coil model
     runs it: at 20 V with a 130 degC coil and at 28 V with a -10 degC one `check` passes, the
     hold mean within 0.5 % of the prediction, the release (fast, from the OFF) within 5 %."""
-    from driver_harness import loop_captures
-    from coildrive.bench.check import check_capture
-
     require_tool("gcc")
-    _, d = cl
-    runs = [(20.0, 130.0, None), (28.0, -10.0, None)]
-    for (supply, temp, _), (_, cap) in zip(runs, loop_captures(tmp_path, d, runs, hold_time=0.02)):
-        rep = check_capture(cap, d, coil_temp=temp)
-        rows = {x.name: x for x in rep.items}
-        assert rep.ok, [(x.name, x.status, x.detail) for x in rep.items if x.status == "FAIL"]
-        assert rows["hold_mean"].values[0] == pytest.approx(rep.prediction["hold_mean_a"], rel=5e-3)
-        assert rows["release_time"].values[0] == pytest.approx(rep.prediction["release_time_s"], rel=0.05)
+    compiled_loop_checks(cl[1], tmp_path, 5e-3)
 
 
 def test_what_a_closed_loop_bridge_refuses_is_one_line(tmp_path):
