@@ -122,22 +122,30 @@ def test_settled_sample_matches_solve_ivp_on_the_slow_path(cl):
 
 
 @pytest.mark.ngspice
-def test_settled_hold_matches_ngspice(tmp_path):
+@pytest.mark.parametrize("kind", ["linear", "curve"])
+def test_settled_hold_matches_ngspice(tmp_path, kind):
     """ngspice: the element-level bridge (tests/test_reference_ngspice_bridge.py, the sense
     resistor inline) driven at the duty the designed loop settles at for those elements
     (Q1 + Q4 on; Q2 + Q4 in the off-time, Q2 closing 2 ns after Q1 opens and opening 2 ns
     before it closes: its body diode carries the dead time), started at the model's orbit
     and run ten periods: the middle-of-period sample (what the loop regulates) and the
-    period's mean within 1 % (the sample also within one ADC code of the set-point)."""
+    period's mean within 1 % (the sample also within one ADC code of the set-point). Twice:
+    the linear inductor and the saturating curve of tests/test_flux_ngspice.py (ngspice's
+    flux-controlled inductor started at ``psi(i_min)``; the plant at the curve's slope)."""
     from ngspice_run import run
-    from test_reference_ngspice_bridge import EDGE, L_COIL, R_COIL, R_SW, V_SUP, _netlist
+    from test_flux_ngspice import CURVE_I, _psi
+    from test_reference_ngspice_bridge import COILS, EDGE, L_COIL, R_COIL, R_SW, V_SUP, _coil_netlist, _netlist
     from coildrive.design.loop_duty import sample_at, settled_duty
+    from coildrive.model import flux
 
     board = tmp_path / "bridge.toml"
     board.write_text((BOARDS / "bridge-m32-fast.toml").read_text().replace(
         'on_resistance = "40 mohm"', f'on_resistance = "{R_SW * 1e3:g} mohm"'))
+    table = ", ".join(f'"{x * 1e3:.9f} mWb"' for x in _psi(CURVE_I))
+    coil = (f'inductance = "{L_COIL * 1e3:g} mH"' if kind == "linear" else
+            f"flux_current = {CURVE_I}\nflux_linkage = [{table}]")
     path = _variant(tmp_path, ('resistance = "24 ohm"', f'resistance = "{R_COIL:g} ohm"'),
-                    ('inductance = "70 mH"', f'inductance = "{L_COIL * 1e3:g} mH"'), board=board)
+                    ('inductance = "70 mH"', coil), board=board)
     d = design(load_drive(path))
     r = d.hold.closed_loop
     duty = settled_duty(d, V_SUP, 20.0)       # the coil at its reference temperature: R_COIL
@@ -154,8 +162,12 @@ def test_settled_hold_matches_ngspice(tmp_path):
     measures = [f"meas tran isample FIND i(VM) AT={t0 + 0.5 * period!r}",
                 f"meas tran iavg AVG i(VM) from={t0!r} to={n * period!r}"]
     text = _netlist("bridge-closed-loop", gates, n * period, period / 400, measures, inline=True)
-    res = run(tmp_path, "bridge-closed-loop", text.replace("IC=0\n", f"IC={float(ss.i_min)!r}\n"))
-    print(f"bridge closed loop at duty {duty:.6f} vs ngspice: sample {float(sample):.6e}/{res['isample']:.6e}, "
+    text = _coil_netlist(text.replace("IC=0\n", f"IC={float(ss.i_min)!r}\n"), COILS[kind])
+    if kind == "curve":   # the flux node at psi(i_min)
+        psi0 = float(np.ravel(flux.linkage(COILS[kind], float(ss.i_min)))[0])
+        text = text.replace("CPHI phi 0 1 IC=0", f"CPHI phi 0 1 IC={psi0!r}")
+    res = run(tmp_path, "bridge-closed-loop", text)
+    print(f"bridge closed loop ({kind}) at duty {duty:.6f} vs ngspice: sample {float(sample):.6e}/{res['isample']:.6e}, "
           f"mean {float(ss.mean):.6e}/{res['iavg']:.6e} A")
     assert res["isample"] == pytest.approx(float(sample), rel=0.01)
     assert res["iavg"] == pytest.approx(float(ss.mean), rel=0.01)

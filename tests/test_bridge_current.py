@@ -306,7 +306,8 @@ def compiled_loop_checks(d, tmp_path, mean_rel: float) -> None:
 
 
 @pytest.mark.ngspice
-def test_hysteretic_hold_and_release_match_ngspice(tmp_path):
+@pytest.mark.parametrize("kind", ["linear", "curve"])
+def test_hysteretic_hold_and_release_match_ngspice(tmp_path, kind):
     """ngspice finds the switching itself: the element-level bridge (tests/
     test_reference_ngspice_bridge.py, the sense resistor inline) with Q1's gate from a
     comparator with hysteresis on the coil current (a voltage-controlled switch, SW model
@@ -317,18 +318,26 @@ def test_hysteretic_hold_and_release_match_ngspice(tmp_path):
     loop at that point (its bridge's slow path) against ngspice: the switching frequency over
     eight periods and the mean within 1 %, the ripple's ends within 1 % of the band; the
     fast release from the current ngspice turns off (time to drop-out within 1 % plus a
-    step, the energy back into the supply within 1 %)."""
+    step, the energy back into the supply within 1 %). Twice: with the linear inductor and
+    with the saturating curve of tests/test_flux_ngspice.py (ngspice's flux-controlled
+    inductor, started at ``psi(I_lo)``; the model's exact quadrature of the curve)."""
     from ngspice_run import run
-    from test_reference_ngspice_bridge import EDGE, L_COIL, R_COIL, R_SENSE, R_SW, STAGGER, V_D, V_SUP, _netlist
+    from test_flux_ngspice import CURVE_I, _psi
+    from test_reference_ngspice_bridge import (COILS, EDGE, L_COIL, R_COIL, R_SENSE, R_SW, STAGGER, V_D, V_SUP,
+                                               _coil_netlist, _netlist)
     from coildrive.design.hold_current import steady_state
+    from coildrive.model import flux
     from coildrive.model.bridge import fast_decay, release
     from coildrive.model.circuit import loop
 
     board = tmp_path / "bridge.toml"
     board.write_text((BOARDS / "bridge-m32-fast.toml").read_text().replace(
         'on_resistance = "40 mohm"', f'on_resistance = "{R_SW * 1e3:g} mohm"'))
+    table = ", ".join(f'"{x * 1e3:.9f} mWb"' for x in _psi(CURVE_I))
+    coil = (f'inductance = "{L_COIL * 1e3:g} mH"' if kind == "linear" else
+            f"flux_current = {CURVE_I}\nflux_linkage = [{table}]")
     path = _variant(tmp_path, ('resistance = "24 ohm"', f'resistance = "{R_COIL:g} ohm"'),
-                    ('inductance = "70 mH"', f'inductance = "{L_COIL * 1e3:g} mH"'), board=board)
+                    ('inductance = "70 mH"', coil), board=board)
     drive = load_drive(path)
     assert (drive.board.sense.resistance, drive.freewheel.diode_drop, drive.board.sense.position) == \
         (R_SENSE, V_D, "coil")
@@ -354,7 +363,7 @@ def test_hysteretic_hold_and_release_match_ngspice(tmp_path):
     t_end = t_rel + 0.95 * float(release(fast_decay(R_COIL, R_SENSE, V_SUP, V_D), lo, i_drop,
                                          fast.inductance).zero_time)
     measures.append(f"meas tran iend FIND i(VM) AT={t_end!r}")
-    text = _netlist("bridge-hysteretic", gates, t_end, step, measures, inline=True)
+    text = _coil_netlist(_netlist("bridge-hysteretic", gates, t_end, step, measures, inline=True), COILS[kind])
     mid, half = 0.5 * (lo + hi), 0.5 * (hi - lo)
     comparator = ["VONE one 0 DC 1", "SCMP one sw ctl 0 HYST", "RPULL sw 0 1",
                   "RF sw gate 10", "CF gate 0 1e-9 IC=0",
@@ -367,17 +376,22 @@ def test_hysteretic_hold_and_release_match_ngspice(tmp_path):
     lines = [x for x in text.splitlines() if not x.startswith(("VG1 ", "VG2 "))]
     lines = [x.replace(" g2 0 SWITCH", " g2 0 SWITCH2") for x in lines]
     lines = [x.replace("IC=0", f"IC={lo!r}") if x.startswith("LCOIL") else x for x in lines]
+    if kind == "curve":   # the flux node at psi(I_lo)
+        psi0 = float(np.ravel(flux.linkage(COILS[kind], lo))[0])
+        lines = [x.replace("IC=0", f"IC={psi0!r}") if x.startswith("CPHI") else x for x in lines]
     k = next(j for j, x in enumerate(lines) if x.startswith(".options"))
     res = run(tmp_path, "bridge-hysteretic", "\n".join(lines[:k] + comparator + lines[k:]) + "\n")
     f_spice = (last - first) / (res["t2"] - res["t1"])
     rel = release(fast_decay(R_COIL, R_SENSE, V_SUP, V_D), res["ioff"], i_drop, fast.inductance)
     t_drop = float(rel.drop_time)
     # the supply takes back V_bus x the charge up to t_end (the rest of the tail: the RL
-    # integral's remainder, (L i_end - (V_bus + 2 V_d) t_rest) / R, from memory)
+    # integral's remainder, (L i_end - (V_bus + 2 V_d) t_rest) / R, from memory, with the
+    # curve's small-signal slope: the tail's current is near zero)
     b = (V_SUP + 2 * V_D) / (R_COIL + R_SENSE)
-    t_rest = L_COIL / (R_COIL + R_SENSE) * math.log((res["iend"] + b) / b)
-    rest = V_SUP * (L_COIL * res["iend"] - (V_SUP + 2 * V_D) * t_rest) / (R_COIL + R_SENSE)
-    print(f"bridge hysteretic vs ngspice: {float(ss.frequency):.6e}/{f_spice:.6e} Hz, mean "
+    ell = L_COIL if kind == "linear" else float(np.ravel(COILS[kind].curve.incremental(0.0))[0])
+    t_rest = ell / (R_COIL + R_SENSE) * math.log((res["iend"] + b) / b)
+    rest = V_SUP * (ell * res["iend"] - (V_SUP + 2 * V_D) * t_rest) / (R_COIL + R_SENSE)
+    print(f"bridge hysteretic ({kind}) vs ngspice: {float(ss.frequency):.6e}/{f_spice:.6e} Hz, mean "
           f"{float(ss.mean):.6e}/{res['iavg']:.6e} A, drop {t_drop:.6e}/{res['tdrop'] - t_rel:.6e} s, "
           f"back {float(rel.returned):.6e}/{res['eback'] + rest:.6e} J")
     assert float(fast.r_off) == pytest.approx(R_COIL + R_SENSE) and float(fast.v_off) == pytest.approx(V_SUP + 2 * V_D)
