@@ -305,6 +305,69 @@ def compiled_loop_checks(d, tmp_path, mean_rel: float) -> None:
         assert rows["release_time"].values[0] == pytest.approx(rep.prediction["release_time_s"], rel=0.05)
 
 
+def _hysteretic_deck(text: str, lo: float, hi: float, t_rel: float, psi0=None) -> str:
+    """The bridge netlist ``text`` with Q1's gate from a comparator with hysteresis on
+    ``i(VM)`` (closes below ``lo``, opens above ``hi`` A; its input filtered by 1 ns -- the
+    terminal current of an eddy term steps at each edge -- its output by 10 ns), Q2 its
+    complement with a dead time either side (its own switch model closes below 0.1 of the
+    gate), both until ``t_rel`` s; the coil (or a curve's flux node, at ``psi0``) from ``lo``."""
+    from test_reference_ngspice_bridge import EDGE, R_SW
+
+    mid, half = 0.5 * (lo + hi), 0.5 * (hi - lo)
+    comparator = ["VONE one 0 DC 1", "SCMP one sw ctl 0 HYST", "RPULL sw 0 1",
+                  "RF sw gate 10", "CF gate 0 1e-9 IC=0",
+                  f"BCTL raw 0 V = ({mid!r} - i(VM)) * 1000", "RCTL raw ctl 1", "CCTL ctl 0 1e-9",
+                  f".model HYST SW(RON=1e-3 ROFF=1e15 VT=0 VH={half * 1000!r})",
+                  f"VEN en 0 PULSE(1 0 {t_rel!r} {EDGE} {EDGE} 1 1e3)",
+                  "BG1 g1 0 V = v(gate) * v(en)",
+                  "BG2 g2 0 V = (1 - v(gate)) * v(en)",
+                  f".model SWITCH2 SW(VT=0.9 VH=0 RON={R_SW!r} ROFF=1e9)"]
+    lines = [x for x in text.splitlines() if not x.startswith(("VG1 ", "VG2 "))]
+    lines = [x.replace(" g2 0 SWITCH", " g2 0 SWITCH2") for x in lines]
+    lines = [x.replace("IC=0", f"IC={lo!r}") if x.startswith("LCOIL") else x for x in lines]
+    if psi0 is not None:
+        lines = [x.replace("IC=0", f"IC={psi0!r}") if x.startswith("CPHI") else x for x in lines]
+    k = next(j for j, x in enumerate(lines) if x.startswith(".options"))
+    return "\n".join(lines[:k] + comparator + lines[k:]) + "\n"
+
+
+@pytest.mark.ngspice
+def test_hysteretic_hold_with_an_eddy_term_matches_ngspice(tmp_path):
+    """The eddy term on the bridge's hysteretic hold: ngspice's element-level bridge with
+    ``REDDY`` across the inductor (tests/test_bridge_eddy.py's netlist), the comparator on
+    the terminal current (what the sense resistor carries: it steps at each edge by ``(V +
+    V_off) / (R + R_e)``, here within the 0.1 A band) against the design's loop at that
+    point: the switching frequency over eight periods and the terminal mean within 1 %."""
+    from ngspice_run import run
+    from test_bridge_eddy import R_E, _eddy
+    from test_reference_ngspice_bridge import L_COIL, R_COIL, R_SW, V_SUP, _netlist
+    from coildrive.design.hold_current import steady_state
+    from coildrive.model.circuit import loop
+
+    board = tmp_path / "bridge.toml"
+    board.write_text((BOARDS / "bridge-m32-fast.toml").read_text().replace(
+        'on_resistance = "40 mohm"', f'on_resistance = "{R_SW * 1e3:g} mohm"'))
+    path = _variant(tmp_path, ('resistance = "24 ohm"', f'resistance = "{R_COIL:g} ohm"\neddy_resistance = {R_E!r}'),
+                    ('inductance = "70 mH"', f'inductance = "{L_COIL * 1e3:g} mH"'), board=board)
+    drive = load_drive(path)
+    lp = loop(drive, V_SUP, 20.0)
+    lo, hi = 0.25, 0.35
+    ss = steady_state(drive, lp, lo, hi, 0.0, 0.0)
+    assert bool(ss.regulated) and (ss.chatter is None or not bool(ss.chatter)), "precondition: the band holds"
+    period = float(ss.period)
+    first, last = 2, 10
+    measures = [f"meas tran t1 WHEN v(g1)=0.5 RISE={first}", f"meas tran t2 WHEN v(g1)=0.5 RISE={last}",
+                "meas tran iavg AVG i(VM) from=t1 to=t2"]
+    gates = {1: "DC 0", 2: "DC 0", 3: "DC 0", 4: "DC 1"}
+    text = _eddy(_netlist("bridge-hysteretic-eddy", gates, (last + 1) * period, period / 400, measures, inline=True))
+    res = run(tmp_path, "bridge-hysteretic-eddy", _hysteretic_deck(text, lo, hi, 1.0))
+    f_spice = (last - first) / (res["t2"] - res["t1"])
+    print(f"bridge hysteretic (eddy) vs ngspice: {float(ss.frequency):.6e}/{f_spice:.6e} Hz, mean "
+          f"{float(ss.mean):.6e}/{res['iavg']:.6e} A")
+    assert f_spice == pytest.approx(float(ss.frequency), rel=0.01), "switching frequency (ngspice)"
+    assert res["iavg"] == pytest.approx(float(ss.mean), rel=0.01), "terminal mean (ngspice)"
+
+
 @pytest.mark.ngspice
 @pytest.mark.parametrize("kind", ["linear", "curve"])
 def test_hysteretic_hold_and_release_match_ngspice(tmp_path, kind):
@@ -364,23 +427,8 @@ def test_hysteretic_hold_and_release_match_ngspice(tmp_path, kind):
                                          fast.inductance).zero_time)
     measures.append(f"meas tran iend FIND i(VM) AT={t_end!r}")
     text = _coil_netlist(_netlist("bridge-hysteretic", gates, t_end, step, measures, inline=True), COILS[kind])
-    mid, half = 0.5 * (lo + hi), 0.5 * (hi - lo)
-    comparator = ["VONE one 0 DC 1", "SCMP one sw ctl 0 HYST", "RPULL sw 0 1",
-                  "RF sw gate 10", "CF gate 0 1e-9 IC=0",
-                  f"BCTL ctl 0 V = ({mid!r} - i(VM)) * 1000",
-                  f".model HYST SW(RON=1e-3 ROFF=1e15 VT=0 VH={half * 1000!r})",
-                  f"VEN en 0 PULSE(1 0 {t_rel!r} {EDGE} {EDGE} 1 1e3)",
-                  "BG1 g1 0 V = v(gate) * v(en)",
-                  "BG2 g2 0 V = (1 - v(gate)) * v(en)",
-                  f".model SWITCH2 SW(VT=0.9 VH=0 RON={R_SW!r} ROFF=1e9)"]
-    lines = [x for x in text.splitlines() if not x.startswith(("VG1 ", "VG2 "))]
-    lines = [x.replace(" g2 0 SWITCH", " g2 0 SWITCH2") for x in lines]
-    lines = [x.replace("IC=0", f"IC={lo!r}") if x.startswith("LCOIL") else x for x in lines]
-    if kind == "curve":   # the flux node at psi(I_lo)
-        psi0 = float(np.ravel(flux.linkage(COILS[kind], lo))[0])
-        lines = [x.replace("IC=0", f"IC={psi0!r}") if x.startswith("CPHI") else x for x in lines]
-    k = next(j for j, x in enumerate(lines) if x.startswith(".options"))
-    res = run(tmp_path, "bridge-hysteretic", "\n".join(lines[:k] + comparator + lines[k:]) + "\n")
+    psi0 = float(np.ravel(flux.linkage(COILS[kind], lo))[0]) if kind == "curve" else None
+    res = run(tmp_path, "bridge-hysteretic", _hysteretic_deck(text, lo, hi, t_rel, psi0))
     f_spice = (last - first) / (res["t2"] - res["t1"])
     rel = release(fast_decay(R_COIL, R_SENSE, V_SUP, V_D), res["ioff"], i_drop, fast.inductance)
     t_drop = float(rel.drop_time)
