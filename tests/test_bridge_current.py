@@ -28,7 +28,7 @@ import math
 import numpy as np
 import pytest
 
-from conftest import BOARDS, EXAMPLES, run_cli
+from conftest import BOARDS, EXAMPLES, require_tool, run_cli
 from coildrive.config import load_drive
 from coildrive.design import design
 from coildrive.errors import InputError
@@ -452,3 +452,21 @@ def test_hysteretic_hold_and_release_match_ngspice(tmp_path, kind):
     assert abs(res["tdrop"] - t_rel - t_drop) <= 0.01 * t_drop + step, (res["tdrop"] - t_rel, t_drop)
     assert res["eback"] + rest == pytest.approx(float(rel.returned), rel=0.01)
     assert 0 < rest < 0.01 * float(rel.returned), "the tail left out is small"
+
+
+@pytest.mark.slow
+def test_firmware_driver_emulate_capture_check_over_a_real_pty(tmp_path, monkeypatch):
+    # as a user runs it, each a real subprocess: firmware-driver -> emulate --firmware ->
+    # capture -> check, the bridge's hysteretic hold at the low supply with a hot coil
+    from test_firmware_loop import capture
+
+    require_tool("gcc")
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "cache"))
+    drive = _variant(tmp_path)
+    r = run_cli("firmware-driver", str(drive), "--out", str(tmp_path / "fw"))
+    assert r.returncode == 0, r.stderr
+    out, _ = capture(tmp_path, tmp_path / "fw", "bridge-cm", "--supply", "20", "--coil-temp", "110", drive=drive)
+    r = run_cli("check", str(out), str(drive), "--json")
+    items = {i["name"]: i for i in json.loads(r.stdout)["items"]}
+    assert r.returncode == 0, {k: (i["status"], i["detail"]) for k, i in items.items()}
+    assert items["hold_mean"]["status"] == "pass" and items["release_time"]["status"] == "pass"
