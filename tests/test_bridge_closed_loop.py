@@ -122,7 +122,7 @@ def test_settled_sample_matches_solve_ivp_on_the_slow_path(cl):
 
 
 @pytest.mark.ngspice
-@pytest.mark.parametrize("kind", ["linear", "curve"])
+@pytest.mark.parametrize("kind", ["linear", "curve", "eddy"])
 def test_settled_hold_matches_ngspice(tmp_path, kind):
     """ngspice: the element-level bridge (tests/test_reference_ngspice_bridge.py, the sense
     resistor inline) driven at the duty the designed loop settles at for those elements
@@ -131,8 +131,11 @@ def test_settled_hold_matches_ngspice(tmp_path, kind):
     and run ten periods: the middle-of-period sample (what the loop regulates) and the
     period's mean within 1 % (the sample also within one ADC code of the set-point). Twice:
     the linear inductor and the saturating curve of tests/test_flux_ngspice.py (ngspice's
-    flux-controlled inductor started at ``psi(i_min)``; the plant at the curve's slope)."""
+    flux-controlled inductor started at ``psi(i_min)``; the plant at the curve's slope), and
+    an eddy term (tests/test_bridge_eddy.py's resistor across the inductor: the sample and
+    the mean are the terminal current's, the inductor started at the magnetising ``i_min``)."""
     from ngspice_run import run
+    from test_bridge_eddy import R_E, _eddy
     from test_flux_ngspice import CURVE_I, _psi
     from test_reference_ngspice_bridge import COILS, EDGE, L_COIL, R_COIL, R_SW, V_SUP, _coil_netlist, _netlist
     from coildrive.design.loop_duty import sample_at, settled_duty
@@ -142,9 +145,10 @@ def test_settled_hold_matches_ngspice(tmp_path, kind):
     board.write_text((BOARDS / "bridge-m32-fast.toml").read_text().replace(
         'on_resistance = "40 mohm"', f'on_resistance = "{R_SW * 1e3:g} mohm"'))
     table = ", ".join(f'"{x * 1e3:.9f} mWb"' for x in _psi(CURVE_I))
-    coil = (f'inductance = "{L_COIL * 1e3:g} mH"' if kind == "linear" else
-            f"flux_current = {CURVE_I}\nflux_linkage = [{table}]")
-    path = _variant(tmp_path, ('resistance = "24 ohm"', f'resistance = "{R_COIL:g} ohm"'),
+    coil = (f"flux_current = {CURVE_I}\nflux_linkage = [{table}]" if kind == "curve" else
+            f'inductance = "{L_COIL * 1e3:g} mH"')
+    eddy = f"\neddy_resistance = {R_E!r}" if kind == "eddy" else ""
+    path = _variant(tmp_path, ('resistance = "24 ohm"', f'resistance = "{R_COIL:g} ohm"{eddy}'),
                     ('inductance = "70 mH"', coil), board=board)
     d = design(load_drive(path))
     r = d.hold.closed_loop
@@ -162,7 +166,8 @@ def test_settled_hold_matches_ngspice(tmp_path, kind):
     measures = [f"meas tran isample FIND i(VM) AT={t0 + 0.5 * period!r}",
                 f"meas tran iavg AVG i(VM) from={t0!r} to={n * period!r}"]
     text = _netlist("bridge-closed-loop", gates, n * period, period / 400, measures, inline=True)
-    text = _coil_netlist(text.replace("IC=0\n", f"IC={float(ss.i_min)!r}\n"), COILS[kind])
+    text = text.replace("IC=0\n", f"IC={float(ss.i_min)!r}\n")
+    text = _eddy(text) if kind == "eddy" else _coil_netlist(text, COILS[kind])
     if kind == "curve":   # the flux node at psi(i_min)
         psi0 = float(np.ravel(flux.linkage(COILS[kind], float(ss.i_min)))[0])
         text = text.replace("CPHI phi 0 1 IC=0", f"CPHI phi 0 1 IC={psi0!r}")
