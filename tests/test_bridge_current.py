@@ -470,3 +470,11 @@ def test_firmware_driver_emulate_capture_check_over_a_real_pty(tmp_path, monkeyp
     items = {i["name"]: i for i in json.loads(r.stdout)["items"]}
     assert r.returncode == 0, {k: (i["status"], i["detail"]) for k, i in items.items()}
     assert items["hold_mean"]["status"] == "pass" and items["release_time"]["status"] == "pass"
+
+
+def test_hysteretic_with_the_sense_in_the_common_return_fails_its_check(tmp_path):
+    # the slow decay recirculates through Q2 + Q4 above the common-return resistor: it reads
+    # zero in every off-time, so the lower threshold cannot be seen (off-time control can)
+    d = design(load_drive(_variant(tmp_path, board=common_return_board(tmp_path))))
+    check = next(c for c in d.checks if c.name == "current_mode_sense")
+    assert not check.ok and "common return" in check.detail and 'control = "off_time"' in check.detail
