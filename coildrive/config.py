@@ -1526,8 +1526,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,
                   supply: Supply, hold: Hold) -> None:
     """What a full bridge needs: its freewheel path is its switches' body diodes (type
-    "diode", no split decay: the bridge decays slowly and fast by itself), a voltage-mode
-    hold (or a latching coil's pulses), and with a supply that cannot sink the returned
+    "diode", no split decay: the bridge decays slowly and fast by itself), mixed decay only
+    under a fixed or supply-table hold (a current-mode or closed-loop hold decays slowly),
+    and with a supply that cannot sink the returned
     energy, the bulk capacitance. (The supply's ``sink`` and
     ``capacitance`` keys mean nothing to the other topologies, which return no energy.)"""
     if switch.topology != "full_bridge":
@@ -1545,9 +1546,11 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
         raise InputError(fw_origins.get("split_decay", source), "freewheel.split_decay",
                          "a full bridge decays slowly in the hold and fast at the release by itself: "
                          "expected split_decay left out")
-    if hold.mode not in ("voltage", "latch"):
-        raise InputError(source, "hold.mode", f"{hold.mode!r} with a full bridge: coildrive designs a "
-                         "full bridge's hold in voltage mode only, expected mode = \"voltage\"")
+    if hold.regulation in ("current", "closed_loop") and hold.fast_fraction > 0:
+        what = "hold.mode = \"current\"" if hold.mode == "current" else "regulation = \"closed_loop\""
+        raise InputError(source, "hold.fast_fraction", f"{hold.fast_fraction:g} with {what}: a full "
+                         "bridge's regulated hold decays slowly (the two low-side switches), expected "
+                         "0 or the key left out (mixed decay: a fixed or supply-table hold)")
     if not supply.sink and not supply.capacitance > 0:
         raise InputError(source, "supply.capacitance", "missing: with sink = false the returned "
                          "energy lands on the bulk capacitance, expected its value (e.g. \"470 uF\")")

@@ -70,7 +70,7 @@ def drive_path(name: str):
 
 
 #: Bundled boards whose topology refuses some examples (one line each, exit 2): a full
-#: bridge takes no split decay, no moving armature and no current-mode hold.
+#: bridge takes no split decay and no freewheel element of its own (its body diodes are its path).
 REFUSING_BOARDS = ("bridge-m32-fast",)
 #: Bundled examples made for one board only, by name: the boosted fuel valve's peak is
 #: sized for its board's ADC and tick (its 1.1 A threshold reads 2731 codes there); on

@@ -178,8 +178,8 @@ def budget_script(d) -> list[tuple[str, int]]:
 
 
 #: Drive shapes whose handlers the budget covers: every bundled example (the closed-loop
-#: one included), the bridge example with a moving armature and with a mixed-decay hold,
-#: and the demo with each current-mode control.
+#: one included), the bridge example with a moving armature, with a mixed-decay hold, with
+#: each current-mode control and with a closed loop, and the demo with each current-mode control.
 def budget_shapes() -> list[tuple[str, object]]:
     shapes = [(name, example_design(name)) for name in
               ("demo-valve", "door-latch-24v", "locker-latch-12v", "pinch-valve-48v", "relay-12v",
@@ -193,6 +193,11 @@ def budget_shapes() -> list[tuple[str, object]]:
     for control in ("hysteretic", "off_time"):
         shapes.append((f"demo-valve {control}", example_design(
             "demo-valve", ('frequency = "25 kHz"', f'frequency = "25 kHz"\nmode = "current"\ncontrol = "{control}"'))))
+        # a bridge's current-mode hold: the threshold handlers switch the masks
+        shapes.append((f"dosing-valve-bridge-24v {control}", example_design(
+            "dosing-valve-bridge-24v", ("[hold]\n", f'[hold]\nmode = "current"\ncontrol = "{control}"\n'))))
+    shapes.append(("dosing-valve-bridge-24v closed-loop", example_design(
+        "dosing-valve-bridge-24v", ("[hold]\n", '[hold]\nregulation = "closed_loop"\n'))))
     return shapes
 
 

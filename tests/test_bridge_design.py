@@ -47,9 +47,8 @@ def _one_line_error(path, key):
     ('[hold]\n', '[freewheel]\nsplit_decay = true\nbypass_resistance = "0.1 ohm"\n\n[hold]\n',
      "freewheel.split_decay"),
     ('capacitance = "220 uF"       # bulk capacitance on the bridge\'s bus\n', '', "supply.capacitance"),
-    ('[hold]\n', '[hold]\nmode = "current"\n', "hold.mode"),
-    ('[hold]\n', '[hold]\nregulation = "closed_loop"\n', "switch.topology"),
-    # (a moving armature designs on a bridge, with mixed decay too: tests/test_bridge_armature*.py)
+    # (a moving armature designs on a bridge, with mixed decay too: tests/test_bridge_armature*.py;
+    # a current-mode hold: tests/test_bridge_current.py; a closed loop: tests/test_bridge_closed_loop.py)
 ])
 def test_what_a_full_bridge_refuses_is_one_line(tmp_path, old, new, key):
     line = _one_line_error(_variant(tmp_path, old, new), key)

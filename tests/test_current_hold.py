@@ -25,7 +25,7 @@ from coildrive.design.corners import corner_grid
 from coildrive.design.hold_current import lsb_current, settle
 from coildrive.design import design
 from coildrive.errors import InputError
-from conftest import BOARDS, EXAMPLES, REFUSING_BOARDS, drive_path, require_tool, run_cli
+from conftest import BOARDS, EXAMPLES, drive_path, require_tool, run_cli
 
 DEMO_TEXT = drive_path("zener-valve").read_text()  # a plain Zener path, fixed peak
 
@@ -250,8 +250,6 @@ def test_tune_and_monte_carlo_refuse_current_mode(tmp_path):
 def test_bundled_boards_design_both_controls(tmp_path):
     """Every bundled board: the current-mode design runs and names its failing checks."""
     for board in sorted(p.stem for p in BOARDS.glob("*.toml")):
-        if board in REFUSING_BOARDS:  # a full bridge holds in voltage mode only (tests/test_bridge_design.py)
-            continue
         for extra in ("", 'control = "off_time"'):
             d = design(load_drive(_drive_file(tmp_path, extra, f"{board}.toml", board)))
             assert d.hold.mode == "current"

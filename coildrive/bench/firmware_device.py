@@ -53,7 +53,9 @@ steps the comparator with the coil, event by event (:meth:`FirmwareDevice._step_
 and calls the driver's threshold and off-timer handlers. The driver opens the switch in
 the tick that reports OFF (docs/firmware.md). With an eddy term the state is the
 magnetising current (the segments of :mod:`coildrive.model.eddy`) and the comparator
-sees the terminal current, which steps at each edge by ``(V + V_off) / (R + R_e)``.
+sees the terminal current, which steps at each edge by ``(V + V_off) / (R + R_e)``. On a
+full bridge the handlers switch the masks, not the enable: Q1 + Q4 on, Q2 + Q4 off (the
+slow decay); the release (all four open) decays fast from the moment the outputs go off.
 With an ``[armature]`` the peak is the armature model's pull-in as above and the hold's
 segments are those of the seated coil.
 """
@@ -627,9 +629,8 @@ class FirmwareDevice(LineOutput):
         converted = False
         pieces = []                # (start s, end s, coil current function) of the period
         for _ in range(10000):    # a handful of edges per period; the bound only stops a runaway
-            out = int(self.lib.fil_outputs())
-            on = bool(out >> 24 & 1)
-            lp = self._loops["hold" if (out >> 25 & 1 or not self._split()) else "release"]
+            on, path = self._cm_segment()
+            lp = self._loops[path]
             ind = lp.inductance
             i_seg, t_seg = i, t
 
@@ -695,8 +696,7 @@ class FirmwareDevice(LineOutput):
             started = int(self.lib.fil_off_timer())
             if started:
                 self._off_expiry = t + (started - 1) * th.off_prescaler / clock
-            new = int(self.lib.fil_outputs())
-            if new >> 24 & 1 != on or (new >> 25 & 1) != (out >> 25 & 1) or not int(self.lib.fil_threshold()) >> 31:
+            if self._cm_segment() != (on, path) or not int(self.lib.fil_threshold()) >> 31:
                 self._trip = None          # another segment, or the comparator disarmed
         else:
             raise RuntimeError("the current-mode hold's switch chatters: more edges in one PWM period "
@@ -710,6 +710,25 @@ class FirmwareDevice(LineOutput):
         self._t = end
         self._take_frames()
         return T
+
+    def _cm_segment(self) -> tuple[bool, str]:
+        """A current-mode hold's segment as the driver's outputs set it: ``(switch on, the
+        loop's path)``. One switch: on while enabled; off through the hold's path (the
+        bypass closed, or no split decay), else the release's. A full bridge: enabled with
+        the drive mask on (Q1 + Q4), off with the slow-decay mask (the threshold handlers
+        switch the masks, not the enable), and the fast path once all four are open."""
+        out = int(self.lib.fil_outputs())
+        enable = out >> 24 & 1
+        if self._bridge is None:
+            return bool(enable), "hold" if (out >> 25 & 1 or not self._split()) else "release"
+        if not enable:
+            return False, "release"
+        on_mask = int(self.lib.fil_bridge()) & 0x0F
+        drive, slow, _ = self._bridge
+        if on_mask not in (drive, slow):
+            raise RuntimeError(f"the driver switches the bridge's current-mode hold as {on_mask:#x}; the "
+                               f"coil model has paths for on {drive:#x} and off {slow:#x} (slow decay)")
+        return on_mask == drive, "hold"
 
     def _bridge_slow(self, enable: int) -> bool:
         """A full bridge's off-times: True for the slow decay (the hold's path, the masks the

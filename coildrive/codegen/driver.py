@@ -226,8 +226,9 @@ def render_driver(design: Design, prefix: str = "coil") -> dict[str, str]:
 # --------------------------------------------------------------------------- budget
 #: Worst cycles of each handler on an ATmega328P (avr-gcc 5.4 -Os, simavr, Timer1 at
 #: clk/1), over the drive shapes of tests/test_driver_simavr.py (every bundled example
-#: and both current-mode controls) running a script through every path (the top of the
-#: duty table, each fault, the seat), with hooks that store a byte. An 8-bit core is the
+#: and both current-mode controls, the bridge example's regulated holds too) running a
+#: script through every path (the top of the duty table, each fault, the seat), with hooks
+#: that store a byte. An 8-bit core is the
 #: slow case: a 32-bit core runs the same C in fewer cycles (common practice), so the
 #: shares printed are an upper bound there. The test measures again and fails if a
 #: figure exceeds its bound or falls 10 % below it. ``adc_isr_closed_loop`` is the ADC
@@ -239,7 +240,7 @@ def render_driver(design: Design, prefix: str = "coil") -> dict[str, str]:
 #: PEAK_END events sent from the handler), over the boost example's with its time-out;
 #: ``adc_isr_mixed`` a mixed-decay bridge's (the fast part's end, a 32-bit multiply, with
 #: each new compare), over the bridge example with ``fast_fraction = 0.3``.
-HANDLER_CYCLES = {"adc_isr": 340, "pwm_isr": 11, "tick": 692, "threshold_isr": 137,
+HANDLER_CYCLES = {"adc_isr": 340, "pwm_isr": 11, "tick": 692, "threshold_isr": 142,
                   "adc_isr_closed_loop": 602, "adc_isr_bridge": 371, "adc_isr_boost": 404, "adc_isr_mixed": 452}
 #: Worst-case cycle bounds of each handler on Cortex-M cores, over the same drive shapes
 #: and script (tests/test_driver_qemu.py): arm-none-eabi-gcc 12.2 -Os builds run under
@@ -252,24 +253,24 @@ HANDLER_CYCLES = {"adc_isr": 340, "pwm_isr": 11, "tick": 692, "threshold_isr": 1
 #: figure exceeds its bound or all fall 10 % below it.
 CORTEX_CYCLES = {
     "cortex-m0plus": {"adc_isr": 324, "pwm_isr": 13, "tick": 525, "threshold_isr": 121,
-                      "adc_isr_closed_loop": 310, "adc_isr_bridge": 349, "adc_isr_boost": 362,
+                      "adc_isr_closed_loop": 312, "adc_isr_bridge": 349, "adc_isr_boost": 362,
                       "adc_isr_mixed": 368},
     "cortex-m3": {"adc_isr": 305, "pwm_isr": 8, "tick": 509, "threshold_isr": 102,
-                  "adc_isr_closed_loop": 308, "adc_isr_bridge": 328, "adc_isr_boost": 327,
+                  "adc_isr_closed_loop": 309, "adc_isr_bridge": 328, "adc_isr_boost": 327,
                   "adc_isr_mixed": 346},
     "cortex-m4": {"adc_isr": 305, "pwm_isr": 8, "tick": 509, "threshold_isr": 102,
-                  "adc_isr_closed_loop": 308, "adc_isr_bridge": 327, "adc_isr_boost": 327,
+                  "adc_isr_closed_loop": 309, "adc_isr_bridge": 327, "adc_isr_boost": 327,
                   "adc_isr_mixed": 346},
 }
 CORTEX_INSTRUCTIONS = {
     "cortex-m0plus": {"adc_isr": 176, "pwm_isr": 4, "tick": 373, "threshold_isr": 63,
-                      "adc_isr_closed_loop": 165, "adc_isr_bridge": 195, "adc_isr_boost": 194,
+                      "adc_isr_closed_loop": 167, "adc_isr_bridge": 195, "adc_isr_boost": 194,
                       "adc_isr_mixed": 203},
     "cortex-m3": {"adc_isr": 147, "pwm_isr": 2, "tick": 305, "threshold_isr": 53,
-                  "adc_isr_closed_loop": 148, "adc_isr_bridge": 160, "adc_isr_boost": 159,
+                  "adc_isr_closed_loop": 149, "adc_isr_bridge": 160, "adc_isr_boost": 159,
                   "adc_isr_mixed": 170},
     "cortex-m4": {"adc_isr": 147, "pwm_isr": 2, "tick": 305, "threshold_isr": 53,
-                  "adc_isr_closed_loop": 148, "adc_isr_bridge": 159, "adc_isr_boost": 159,
+                  "adc_isr_closed_loop": 149, "adc_isr_bridge": 159, "adc_isr_boost": 159,
                   "adc_isr_mixed": 170},
 }
 #: How each core's figures were had, for the printed timing line.
@@ -287,8 +288,9 @@ _STATE_BYTES = {"avr": 42, "arm": 47}
 #: (Cortex-M0+, larger than the M4 build).
 _CODE_BYTES = {"avr": 1700, "arm": 1300}
 #: The same for a closed-loop hold's driver (the PI step in place of the table lookup;
-#: its own bound so that the other holds' figures stay as measured).
-_CLOSED_LOOP_CODE_BYTES = {"avr": 1650, "arm": 1150}
+#: its own bound so that the other holds' figures stay as measured; the largest: on the
+#: bridge, 1,664 B on the AVR, 1,152 B on a Cortex-M0+).
+_CLOSED_LOOP_CODE_BYTES = {"avr": 1700, "arm": 1200}
 WARN_SHARE = 0.5
 
 

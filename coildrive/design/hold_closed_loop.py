@@ -52,7 +52,7 @@ from .diagnostics import rise_check, seat_check
 from .eddy import eddy_result
 from .thermal_cycle import (HeatPoints, cycle_caution, cycle_result, cycling, thermal_cautions,
                             thermal_checks)
-from .topology import topology_cautions, topology_result
+from .topology import bridge_checks, pumped_release, topology_cautions, topology_result
 from .result import Check, ClosedLoopResult, Design, DutyTable, HoldResult, TimerResult
 from .supply import supply_checks
 from .timer import timer_for
@@ -99,10 +99,6 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     if samples > 0:
         raise InputError("--samples", "", "the Monte Carlo covers the fixed and supply-table holds "
                          "only (this drive has hold.regulation = \"closed_loop\")")
-    if drive.switch.topology == "full_bridge":
-        raise InputError(drive.source, "switch.topology", "'full_bridge': the closed-loop hold is "
-                         "designed for one switch (low- or high-side); use the fixed or "
-                         "supply-table hold on a bridge")
     if drive.pull_in.compensate:
         raise InputError(drive.source, "pull_in.compensate", "a supply-compensated peak is designed "
                          "for the fixed and supply-table holds; leave it out with regulation = "
@@ -228,6 +224,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     offs = boosted_turn_offs(drive, env, res, turn_offs(drive, env, res, peak_end, thresholds.trip_current_a))
     release = release_result(drive, env, res, offs)
     topo = topology_result(drive, env, res, peak_end, thresholds.trip_current_a)
+    release = pumped_release(release, topo)
     pull_in = pull_in_result(drive, env, res, pk, shortest_peak_current(drive, res_low, short))
     timer_result = TimerResult(clock_hz=board.timer.clock, bits=board.timer.bits,
                                prescaler=timer.prescaler, period_ticks=period, compare_ticks=preload,
@@ -241,6 +238,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     arm, more, notes = closing_checks(drive, env, res_low, hold, loss, release, split)
     checks += more
     notes += topology_cautions(drive, topo)
+    checks += bridge_checks(drive, topo)
     thermal = cycle_result(drive, pts, heat_peak, offs, hold.freewheel_power_w,
                            hold.freewheel_elements_w)
     checks += thermal_checks(drive, pull_in.peak_time_s, thermal)

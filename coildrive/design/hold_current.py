@@ -42,7 +42,7 @@ import numpy as np
 
 from ..config import Drive
 from ..errors import InputError
-from ..model.circuit import loop, split_decay
+from ..model.circuit import full_bridge, loop, split_decay, two_paths
 from ..model.current_mode import (CurrentModeSteadyState, hysteretic_steady_state,
                                   off_time_steady_state)
 from ..model.eddy import EddyCoil
@@ -70,7 +70,7 @@ from .result import Check, CurrentModeResult, Design, HoldResult, Thresholds
 from .thermal_cycle import (HeatPoints, cycle_caution, cycle_result, cycling, thermal_cautions,
                             thermal_checks)
 from .timer import solve_timer, timer_for
-from .topology import topology_cautions, topology_result
+from .topology import bridge_checks, pumped_release, topology_cautions, topology_result
 
 #: Upper end of the allowed switching range when neither ``hold.max_frequency`` nor the
 #: board's ``timer.max_pwm_frequency`` gives one (our choice, as for ``coildrive tune``).
@@ -330,7 +330,7 @@ def evaluate_current(drive: Drive, th: Thresholds, supply, ambient, r_factor, l_
     i_peak = bus_rise_current(drive, lp, peak_time, lp.inductance)
     power = coil_heat(ss, lp.r_coil)   # the copper's, and an eddy term's core loss
     i_off = ss.i_max
-    if split_decay(drive):
+    if two_paths(drive):   # split decay, or a full bridge: the release decays fast
         finite = np.where(np.isfinite(temp), temp, drive.thermal.max_coil_temp)
         lp_rel = loop(drive, supply, finite, r_factor, l_factor, path="release")
     else:
@@ -455,6 +455,9 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     offs = boosted_turn_offs(drive, grid, res,
                              turn_offs(drive, grid, res, res.peak_end_current, thresholds.trip_current_a))
     release = release_result(drive, grid, res, offs)
+    # a full bridge: its fast decay's energy returned, the bus pump-up and its checks
+    topo = topology_result(drive, grid, res, res.peak_end_current, thresholds.trip_current_a)
+    release = pumped_release(release, topo)
     pull_in = pull_in_result(drive, grid, res, pk, shortest_peak_current(drive, res, pk.short_time))
 
     setting = timer_for(drive)
@@ -471,8 +474,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
             c = old[name]
             checks.append(dataclasses.replace(c, detail="fixed-duty fallback: " + c.detail,
                                               severity="warning"))
-    topo = topology_result(drive, grid, res, res.peak_end_current, thresholds.trip_current_a)
     notes += topology_cautions(drive, topo)
+    checks += bridge_checks(drive, topo)
     lower = th.lower_a if th.control == "hysteretic" else 0.0
     thermal = cycle_result(drive, heat_points(drive, grid.supply, grid.ambient, grid.r_factor,
                                               grid.l_factor, lower, th.upper_a, th.off_time_s,
@@ -594,11 +597,13 @@ def _current_checks(drive: Drive, th: Thresholds, r: CurrentModeResult, adc, res
     position = drive.board.sense.position
     if hyst:
         ok = position == "coil"
+        where = ("in the bridge's common return (the slow decay's recirculation through the two "
+                 "low-side switches bypasses it)" if full_bridge(drive) else "under the switch")
         add(Check("current_mode_sense", ok,
                   "hysteretic control reads the current while the switch is off: sense resistor in "
                   "the coil path" if ok else
                   "hysteretic control needs the current while the switch is off, but the sense "
-                  "resistor sits under the switch (it reads zero then, so the lower threshold would "
+                  f"resistor sits {where} (it reads zero then, so the lower threshold would "
                   "trip at once) — use control = \"off_time\" (a timed off time) or a coil-path sense"))
     else:
         add(Check("current_mode_sense", True,
@@ -754,7 +759,10 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
 
     With split decay the hold's off segments take the slow path and the release the
     fast one, the bypass opening as ``freewheel.bypass_lead`` says (within the last
-    on-time, or after the turn-off for a negative lead; a ``bypass_on`` column).
+    on-time, or after the turn-off for a negative lead; a ``bypass_on`` column). On a
+    full bridge the off segments recirculate through the two low-side switches (slow
+    decay) and the release opens all four (fast decay into the bus): the bridge's
+    per-switch columns and coil voltage.
 
     With an ``[armature]`` the peak is the moving armature's run and the hold the
     thresholds' segments on the seated coil (:func:`_armature_actuation`)."""
@@ -770,8 +778,8 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
         from ..model.waveform import eddy_waveform
 
         fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") \
-            if split_decay(drive) else None
-        lead = drive.freewheel.bypass_lead if fast is not None else 0.0
+            if two_paths(drive) else None
+        lead = drive.freewheel.bypass_lead if split_decay(drive) else 0.0
         pieces, last_on = threshold_actuation(drive, lp, peak_time, hold_time, points, th.control,
                                               th.lower_a, th.upper_a, th.off_time_s, th.delay_s,
                                               fast, lead)
@@ -795,7 +803,9 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
                            {"on": 0.0, "hold": peak_time, "off": t_off_edge, "zero": zero,
                             "bypass_open": t_open}, label)
         return boost_columns(drive, w, supply, peak_time, r_on, ind)
-    w = release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_off_edge, i, big, label)
+    # a full bridge: the hold's off-times decayed slowly (lp), the release decays fast
+    fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") if two_paths(drive) else None
+    w = release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_off_edge, i, big, label, fast)
     return boost_columns(drive, w, supply, peak_time, r_on, ind)
 
 

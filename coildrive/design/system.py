@@ -778,7 +778,7 @@ def _refuse(system: System, ch) -> None:
     without an eddy term, or a hysteretic current-mode hold), a moving armature under a
     voltage-mode hold only, on one switch
     or a full bridge, a voltage-mode (fixed, supply-table or closed-loop) or current-mode hold and one
-    switch. Anything else is refused in one line."""
+    switch (a full bridge: a fixed or supply-table hold). Anything else is refused in one line."""
     d = ch.drive
     why = None
     if d.coil.flux_current and d.armature is not None:
@@ -793,12 +793,16 @@ def _refuse(system: System, ch) -> None:
         key, why = "coil.eddy_resistance", "an eddy-current term with an [armature] or a current-mode hold"
     elif d.supply.boosted:
         key, why = "supply.boost", "a boosted peak"
+    elif d.switch.topology == "full_bridge" and d.hold.regulation in ("current", "closed_loop"):
+        key = "hold.mode" if d.hold.regulation == "current" else "hold.regulation"
+        why = f"a full bridge's {'current-mode' if d.hold.regulation == 'current' else 'closed-loop'} hold"
     if why is not None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
                          "in a system yet; expected a linear coil (with an [armature] or an eddy term, not both) "
                          "or a flux-linkage curve (no [armature]; an eddy term under a voltage-mode hold), one "
                          "switch or a full bridge and a voltage-mode fixed, supply-table or closed-loop hold, or a "
-                         "current-mode hold (hysteretic on a curve; no [armature])")
+                         "current-mode hold (hysteretic on a curve; no [armature]; on a full bridge a "
+                         "fixed or supply-table hold only)")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:

@@ -16,7 +16,8 @@
  * A small integer coil model gives the current: it climbs toward FULL x compare / period
  * by a quarter of the way per conversion, at most SLEW codes (RISE_SLEW, a rise the
  * driver's shorted-turns check passes, until a "slew" step changes it), while the switch
- * is on and decays by a quarter per conversion while it is off. The
+ * is on (a full bridge: enabled with the drive mask on) and decays by a quarter per
+ * conversion while it is off. The
  * hooks only log into RAM, so the timed calls hold no UART waits and no model arithmetic.
  * OP_LEVEL holds the current at a given code whatever the switch does (a closed-loop
  * hold's test feeds its samples so).
@@ -88,8 +89,29 @@ void coil_port_off_timer(uint16_t counts) { off_pending = 1u; log_add('o', (int3
 #define coil_off_timer_isr_or_none() ((void)0)
 #endif
 
+#ifdef COIL_BRIDGE_PEAK_SWITCHES
+/* A full bridge drives the coil while the outputs are enabled with the drive mask on (a
+ * current-mode hold's off-times keep the outputs enabled and switch to the slow-decay
+ * mask). Read from the hook log before it is printed, outside the timed calls. */
+static uint8_t bridge_on;
+#define DRIVING() (sw && bridge_on == COIL_BRIDGE_PEAK_SWITCHES)
+static void track_bridge(void)
+{
+    uint8_t k;
+    for (k = 0u; k < log_len; k++) {
+        if (log_kind[k] == 'g') {
+            bridge_on = (uint8_t)(log_value[k] & 0x0F);
+        }
+    }
+}
+#else
+#define DRIVING() (sw)
+#define track_bridge() ((void)0)
+#endif
+
 static void drain(void)
 {
+    track_bridge();
     drain_log(now_tick, &now_conv);
 }
 
@@ -102,7 +124,7 @@ static void model(void)
         current = 0u;
     } else if (mode == MODE_SHORT) {
         current = sw ? (uint16_t)COIL_ADC_MAX_CODE : 0u;
-    } else if (sw) {
+    } else if (DRIVING()) {
         uint16_t target = (uint16_t)((uint32_t)full * compare / COIL_TIMER_PERIOD_COUNTS);
         if (target >= current) {
             uint16_t step = (uint16_t)((target - current + 3u) / 4u);
