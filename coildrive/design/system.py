@@ -21,8 +21,8 @@
   ``[supply]`` source resistance and bulk capacitance;
 * **the heat** in the shared freewheel parts and in the board.
 
-A channel is a linear coil, with a moving armature (:mod:`coildrive.model.armature_bound`)
-or an eddy term, or a flux-linkage curve (:mod:`coildrive.model.flux_bound`), on one
+A channel is a linear coil, with a moving armature (:mod:`coildrive.model.armature_bound`),
+an eddy term or both, or a flux-linkage curve (:mod:`coildrive.model.flux_bound`), on one
 switch or a full bridge; a latching coil and a boosted peak are refused in one line
 (:func:`_refuse`). A rail with a curve, an eddy term or a bridge on it takes its droop
 from the rail-current bounds (:func:`bus_from_bound`).
@@ -94,15 +94,26 @@ def _branch_rise(t, b: dict):
     if "rise_time_s" in b:
         return flux_bound.table_current(t, b["rise_time_s"], b["rise_current_a"])
     if "eddy_resistance_ohm" in b:
-        # i = (V + R_e i_m)/(R + R_e), i_m = V/R (1 - exp(-t R_th/L)), R_th = R R_e/(R + R_e)
+        # the terminal current i = (V + R_e i_m)/(R + R_e) on the magnetising current's bound
         v, r, r_e = b["supply_v"], b["resistance_ohm"], b["eddy_resistance_ohm"]
-        i_m = v / r * -np.expm1(-np.clip(t, 0.0, None) * r * r_e / ((r + r_e) * b["inductance_h"]))
-        return np.where(np.asarray(t) < 0, 0.0, (v + r_e * i_m) / (r + r_e))
+        return np.where(np.asarray(t) < 0, 0.0, (v + r_e * _magnetising_rise(t, b)) / (r + r_e))
     if "closing_s" in b:
         return armature_bound.peak_rise(t, b["supply_v"], b["resistance_ohm"], b["inductance_h"],
                                         b["closed_inductance_h"], b["flux_ratio"], b["closing_s"])
     return b["supply_v"] / b["resistance_ohm"] * -np.expm1(
         -np.clip(t, 0.0, None) * b["resistance_ohm"] / b["inductance_h"])
+
+
+def _magnetising_rise(t, b: dict):
+    """The bound (A) of an eddy branch's magnetising current ``t`` s after switch-on: it
+    sees the Thevenin pair ``V_th = V R_e/(R + R_e)``, ``R_th = R R_e/(R + R_e)``, so ``V/R
+    (1 - exp(-t R_th/L))``, or with a moving armature
+    :func:`~coildrive.model.armature_bound.peak_rise` on that pair."""
+    v, r, r_e = b["supply_v"], b["resistance_ohm"], b["eddy_resistance_ohm"]
+    if "closing_s" in b:
+        return armature_bound.peak_rise(t, v * r_e / (r + r_e), r * r_e / (r + r_e), b["inductance_h"],
+                                        b["closed_inductance_h"], b["flux_ratio"], b["closing_s"])
+    return v / r * -np.expm1(-np.clip(t, 0.0, None) * r * r_e / ((r + r_e) * b["inductance_h"]))
 
 
 def _branch_parts(t, b: dict):
@@ -263,7 +274,21 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
         branch = {"supply_v": hi, "supply_low_v": lo, "resistance_ohm": r_on, "inductance_h": l_min,
                   "peak_s": tp}
         peak_end = {}             # the peak's end current where the excess is not measured from it
-        if drive.armature is not None:
+        if r_eddy is not None:
+            # the tail on the magnetising current, decaying at the slowest Thevenin rate
+            r_low = np.minimum(top_cold.r_on, top_cold.r_off)
+            r_slow_eddy = float(np.min(r_eddy * r_low / (r_low + r_eddy)))
+        if drive.armature is not None and r_eddy is not None:
+            # the armature's bound on the magnetising current, which sees the Thevenin pair
+            # (the closing window and the earliest start on it); the rail the terminal current
+            # on it; the tail the eddy term's (below) on the seated coil: one part
+            branch.update(_armature_rise(drive.armature, hi * r_eddy / (r_on + r_eddy),
+                                         r_on * r_eddy / (r_on + r_eddy), l_min, l_max, tp))
+            branch["eddy_resistance_ohm"] = r_eddy
+            r_slow = r_slow_eddy
+            peak_end["a"] = float(_branch_rise(tp, branch))
+            i_pe, ends = np.array([float(_magnetising_rise(tp, branch))]), np.array([l_min, l_max])
+        elif drive.armature is not None:
             branch.update(_armature_rise(drive.armature, hi, r_on, l_min, l_max, tp))
             # the peak's end current is bounded at the open gap, its decay at the seated
             # coil's highest inductance: one part
@@ -271,19 +296,17 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
         elif r_eddy is not None and curve is not None:
             branch.update(_eddy_curve_branch(flux.FluxCoil(curve, float(scale.min())), hi, r_on, r_eddy, tp,
                                              float(np.max(orbit.i_max)), bottom))
-            r_th = r_eddy * np.minimum(top_cold.r_on, top_cold.r_off) / (np.minimum(top_cold.r_on, top_cold.r_off) + r_eddy)
-            r_slow = float(np.min(r_th))
+            r_slow = r_slow_eddy
             hold_top, bottom = branch.pop("hold_top_a"), 0.0
             i_pe = np.array([branch.pop("excess_a")])
             ends = np.array([l_min, branch.pop("l_max_h") * float(scale.max())])
             peak_end["a"] = float(branch["rise_current_a"][-1])
         elif r_eddy is not None:
             # the terminal current's step and rise (model/eddy.py's Thevenin pair); the tail
-            # on the magnetising current, decaying at the slowest Thevenin rate: one part
+            # on the magnetising current: one part
             branch["eddy_resistance_ohm"] = r_eddy
-            r_th = r_eddy * np.minimum(top_cold.r_on, top_cold.r_off) / (np.minimum(top_cold.r_on, top_cold.r_off) + r_eddy)
-            r_slow = float(np.min(r_th))
-            i_pe = np.array([hi / r_on * -np.expm1(-tp * r_on * r_eddy / ((r_on + r_eddy) * l_min))])
+            r_slow = r_slow_eddy
+            i_pe = np.array([float(_magnetising_rise(tp, branch))])
             ends = np.array([l_min, l_max])
             peak_end["a"] = float(_branch_rise(tp, branch))
         elif curve is not None:
@@ -773,11 +796,11 @@ def rail_curves(result: SystemResult, points: int = 6000) -> list[dict]:
 
 
 def _refuse(system: System, ch) -> None:
-    """What the rail's current bound is made for: a linear coil (with a moving armature or
-    an eddy term, not both) or a flux-linkage curve (no armature; voltage-mode with or
-    without an eddy term, or a hysteretic current-mode hold), on one switch
-    or a full bridge, a voltage-mode (fixed, supply-table or closed-loop) or current-mode hold and one
-    switch. Anything else is refused in one line."""
+    """What the rail's current bound is made for: a linear coil (with a moving armature,
+    an eddy term or both) or a flux-linkage curve (no armature), on one switch or a full
+    bridge, under a voltage-mode (fixed, supply-table or closed-loop) hold or a
+    current-mode one (hysteretic on a curve; none with an eddy term). Anything else is
+    refused in one line."""
     d = ch.drive
     why = None
     if d.coil.flux_current and d.armature is not None:
@@ -786,16 +809,16 @@ def _refuse(system: System, ch) -> None:
         key, why = "hold.control", "a fixed off-time current-mode hold with a flux-linkage curve"
     elif d.hold.mode == "latch":
         key, why = "hold.mode", "a latching coil"
-    elif d.coil.eddy_resistance and (d.armature is not None or d.hold.mode == "current"):
-        key, why = "coil.eddy_resistance", "an eddy-current term with an [armature] or a current-mode hold"
+    elif d.coil.eddy_resistance and d.hold.mode == "current":
+        key, why = "coil.eddy_resistance", "an eddy-current term with a current-mode hold"
     elif d.supply.boosted:
         key, why = "supply.boost", "a boosted peak"
     if why is not None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
-                         "in a system yet; expected a linear coil (with an [armature] or an eddy term, not both) "
-                         "or a flux-linkage curve (no [armature]; an eddy term under a voltage-mode hold), one "
-                         "switch or a full bridge and a voltage-mode fixed, supply-table or closed-loop hold, or a "
-                         "current-mode hold (hysteretic on a curve)")
+                         "in a system yet; expected a linear coil (with an [armature], an eddy term or both) "
+                         "or a flux-linkage curve (no [armature]), one switch or a full bridge and a voltage-mode "
+                         "fixed, supply-table or closed-loop hold, or a current-mode hold (hysteretic on a curve; "
+                         "none with an eddy term)")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:
