@@ -37,6 +37,7 @@ import numpy as np
 
 from ..errors import InputError
 from ..model import armature_bound, circuit, eddy, flux, flux_bound, magnet, pwm, shared_bus
+from ..model.current_mode import sensed_threshold
 from ..system_file import System, with_timer
 from . import envelope
 from .envelope import table_index
@@ -415,6 +416,8 @@ def _current_mode_hold(d):
     def hold(cold):
         a_top = cold.v_on / cold.r_on
         i_hi = th.upper_a / low
+        if isinstance(cold.inductance, eddy.EddyCoil):
+            return _eddy_current_hold(th, cold, low, settle)
         if isinstance(cold.inductance, flux.FluxCoil):
             # a saturating coil: over the delay the flux rises by at most v_on x delay, so
             # the top is at most psi^-1(psi(I_hi') + v_on delay / s) at the lowest scale s,
@@ -427,6 +430,37 @@ def _current_mode_hold(d):
             top = np.minimum(a_top, a_top - (a_top - i_hi) * np.exp(-th.delay_s * cold.r_on / cold.inductance))
         return float(np.max(top)), float(th.upper_a / high), settle
     return hold
+
+
+def _eddy_current_hold(th, cold, low: float, settle: float) -> tuple[float, float, float]:
+    """:func:`_current_mode_hold`'s ``(hold top A, bottom A, settle s)`` with an eddy term
+    on a linear coil, from the cold loops ``cold`` (docs/design-method.md, "An
+    eddy-current term"). The comparator reads the terminal current, the state is the
+    magnetising current ``i_m``, which rises toward ``A = V/R_on`` on the Thevenin pair.
+    The switch trips off at a magnetising current of at most ``J``: the upper (peak)
+    threshold read low, ``((R_on + R_e) I_hi' - V) / R_e``; hysteretic, also the lower
+    threshold read low as it switches on (``((R_off + R_e) I_lo' + V_off) / R_e``: it
+    may step above the upper at once). So an on-time ends at most at ``max(J, A - (A - J)
+    exp(-delay R_th/L))``; a fixed off-time may also switch on above ``J`` and run the
+    delay alone, a PWM of ``delay`` on and ``t_off`` off whose orbit's top is the other
+    bound (the map of one such cycle is a contraction: the tops stay under the larger).
+    The hold's top is the terminal current there (off it is below ``i_m``); the bottom
+    of the tail's excess is the lowest ``J`` (magnetising)."""
+    e = cold.inductance
+    r_e, l_m = e.resistance, e.magnetising
+    a_top = cold.v_on / cold.r_on
+    j = sensed_threshold(th.upper_a / low, cold.v_on, cold.r_on, r_e)
+    if th.control == "hysteretic":
+        j = np.maximum(j, sensed_threshold(th.lower_a / low, -cold.v_off, cold.r_off, r_e))
+    r_th = cold.r_on * r_e / (cold.r_on + r_e)
+    top = np.maximum(j, a_top - (a_top - j) * np.exp(-th.delay_s * r_th / l_m))
+    if th.control != "hysteretic":
+        cycle = th.delay_s + th.off_time_s
+        orbit = pwm.pwm_steady_state(th.delay_s / cycle, 1.0 / cycle, cold.v_on, cold.r_on, cold.r_off,
+                                     cold.v_off, e, mixed=cold.mixed)
+        top = np.maximum(top, orbit.i_max)
+    terminal = np.maximum(top, (cold.v_on + r_e * top) / (cold.r_on + r_e))
+    return float(np.max(terminal)), float(np.min(j)), settle
 
 
 def _summary(branches: list[dict]) -> dict:
@@ -799,8 +833,8 @@ def _refuse(system: System, ch) -> None:
     """What the rail's current bound is made for: a linear coil (with a moving armature,
     an eddy term or both) or a flux-linkage curve (no armature), on one switch or a full
     bridge, under a voltage-mode (fixed, supply-table or closed-loop) hold or a
-    current-mode one (hysteretic on a curve; none with an eddy term). Anything else is
-    refused in one line."""
+    current-mode one (hysteretic on a curve; with an eddy term, a linear coil without an
+    armature). Anything else is refused in one line."""
     d = ch.drive
     why = None
     if d.coil.flux_current and d.armature is not None:
@@ -809,8 +843,9 @@ def _refuse(system: System, ch) -> None:
         key, why = "hold.control", "a fixed off-time current-mode hold with a flux-linkage curve"
     elif d.hold.mode == "latch":
         key, why = "hold.mode", "a latching coil"
-    elif d.coil.eddy_resistance and d.hold.mode == "current":
-        key, why = "coil.eddy_resistance", "an eddy-current term with a current-mode hold"
+    elif d.coil.eddy_resistance and d.hold.mode == "current" and (d.coil.flux_current or d.armature is not None):
+        key, why = ("coil.eddy_resistance",
+                    "an eddy-current term with a current-mode hold on a flux-linkage curve or an [armature]")
     elif d.supply.boosted:
         key, why = "supply.boost", "a boosted peak"
     if why is not None:
@@ -818,7 +853,7 @@ def _refuse(system: System, ch) -> None:
                          "in a system yet; expected a linear coil (with an [armature], an eddy term or both) "
                          "or a flux-linkage curve (no [armature]), one switch or a full bridge and a voltage-mode "
                          "fixed, supply-table or closed-loop hold, or a current-mode hold (hysteretic on a curve; "
-                         "none with an eddy term)")
+                         "with an eddy term, a linear coil without [armature])")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:

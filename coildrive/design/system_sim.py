@@ -8,7 +8,10 @@ timer's, counting from 0 s, the first channel's switch-on), off at its own compa
 rail's current is the sum of the switches' currents (a coil's current while its switch
 conducts). Stiff bus: the source resistance's droop is not fed back into the coils.
 
-A channel with a moving armature, a flux-linkage curve, an eddy-current term or a full
+A current-mode channel runs its own actuation
+(:func:`coildrive.design.hold_current.current_mode_actuation`: the nominal thresholds
+switch it, each edge a sample), on at its start offset for the peak its firmware picks.
+Any other channel with a moving armature, a flux-linkage curve, an eddy-current term or a full
 bridge runs the model's own single-channel actuation
 (:func:`coildrive.model.waveform.actuation`) as the reference driver switches it, in its
 once-a-period handler: on at the first period start of the shared timer at or after its
@@ -82,12 +85,6 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
                          f"at up to {f_max:.6g} Hz with {points} points a segment is about "
                          f"{samples:,.0f} samples, more than the {MAX_WAVEFORM_SAMPLES:,} one run may "
                          "have: shorten --hold-time or lower --points")
-    for c in result.channels:
-        if c.design.hold.mode == "current":
-            raise InputError(c.design.drive.source, "hold.mode",
-                             f"channel {c.name!r}: simulate SYSTEM.toml runs every hold on the shared "
-                             "timer, and a current-mode hold switches on its own thresholds; simulate "
-                             "its drive file alone (coildrive simulate DRIVE.toml)")
     runs, periods, duties, starts = [], [], [], []
     for c in result.channels:
         d = c.design
@@ -96,6 +93,14 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
         period = 1.0 / d.hold.frequency_hz
         periods.append(period)
         duties.append(duty)
+        if d.hold.mode == "current":
+            # its own thresholds switch it, not the timer: on at its offset for its peak
+            from .hold_current import current_mode_actuation
+
+            runs.append(current_mode_actuation(drv, d.hold.thresholds, supply, coil_temp, peak, hold_time,
+                                               r_factor, l_factor, points, label=c.name))
+            starts.append(c.offset_s)
+            continue
         if own_waveform(drv):
             t_on, t_peak = driver_peak(c.offset_s, peak, period)
             runs.append(actuation(drv, supply, coil_temp, t_peak, duty, d.hold.frequency_hz, hold_time,
