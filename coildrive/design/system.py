@@ -407,7 +407,9 @@ def _current_mode_hold(d):
     fixed off-time, the delay plus the off time (each further cycle the same again, the
     excess over the threshold multiplied by ``exp(-(delay R_on + t_off R_off)/L)``). The
     bottom of :func:`channel_bound_params`'s excess is therefore ``I_lo'``
-    (docs/design-method.md, "Several channels")."""
+    (docs/design-method.md, "Several channels"). A fixed off-time may switch on with the
+    current still above the threshold and then runs the delay alone: the top is at most
+    the larger of the above and :func:`_delay_orbit_top`."""
     th = d.hold.thresholds
     low, high = envelope.reading_factors(d.drive)
     hyst = th.control == "hysteretic"
@@ -428,8 +430,24 @@ def _current_mode_hold(d):
             top = np.minimum(a_top, reach)
         else:
             top = np.minimum(a_top, a_top - (a_top - i_hi) * np.exp(-th.delay_s * cold.r_on / cold.inductance))
+        if not hyst:
+            top = np.maximum(top, _delay_orbit_top(th, cold))
         return float(np.max(top)), float(th.upper_a / high), settle
     return hold
+
+
+def _delay_orbit_top(th, cold) -> np.ndarray:
+    """The top (A; with an eddy term the magnetising current's) of the PWM orbit of a fixed
+    off-time hold that switches on above its threshold every time: ``delay`` on, ``t_off``
+    off, at the cold loops ``cold``. One such cycle maps a start onto the next
+    increasingly and contracts (every segment's flow does: ``d(psi_a - psi_b)/dt = -R (i_a
+    - i_b)``), so with the tops of the cycles that cross the threshold at most ``T``, every
+    top after one at most ``max(T, x*)`` stays there (``x*`` this orbit's top), and a top
+    above it comes down by the contraction (docs/design-method.md, "Several channels")."""
+    cycle = th.delay_s + th.off_time_s
+    orbit = pwm.pwm_steady_state(th.delay_s / cycle, 1.0 / cycle, cold.v_on, cold.r_on, cold.r_off,
+                                 cold.v_off, cold.inductance, mixed=cold.mixed)
+    return orbit.i_max
 
 
 def _eddy_current_hold(th, cold, low: float, settle: float) -> tuple[float, float, float]:
@@ -455,10 +473,7 @@ def _eddy_current_hold(th, cold, low: float, settle: float) -> tuple[float, floa
     r_th = cold.r_on * r_e / (cold.r_on + r_e)
     top = np.maximum(j, a_top - (a_top - j) * np.exp(-th.delay_s * r_th / l_m))
     if th.control != "hysteretic":
-        cycle = th.delay_s + th.off_time_s
-        orbit = pwm.pwm_steady_state(th.delay_s / cycle, 1.0 / cycle, cold.v_on, cold.r_on, cold.r_off,
-                                     cold.v_off, e, mixed=cold.mixed)
-        top = np.maximum(top, orbit.i_max)
+        top = np.maximum(top, _delay_orbit_top(th, cold))
     terminal = np.maximum(top, (cold.v_on + r_e * top) / (cold.r_on + r_e))
     return float(np.max(terminal)), float(np.min(j)), settle
 
@@ -833,14 +848,12 @@ def _refuse(system: System, ch) -> None:
     """What the rail's current bound is made for: a linear coil (with a moving armature,
     an eddy term or both) or a flux-linkage curve (no armature), on one switch or a full
     bridge, under a voltage-mode (fixed, supply-table or closed-loop) hold or a
-    current-mode one (hysteretic on a curve; with an eddy term, a linear coil without an
-    armature). Anything else is refused in one line."""
+    current-mode one (with an eddy term, on a linear coil without an armature). Anything
+    else is refused in one line."""
     d = ch.drive
     why = None
     if d.coil.flux_current and d.armature is not None:
         key, why = "armature", "a moving armature with a flux-linkage curve"
-    elif d.coil.flux_current and d.hold.mode == "current" and d.hold.control != "hysteretic":
-        key, why = "hold.control", "a fixed off-time current-mode hold with a flux-linkage curve"
     elif d.hold.mode == "latch":
         key, why = "hold.mode", "a latching coil"
     elif d.coil.eddy_resistance and d.hold.mode == "current" and (d.coil.flux_current or d.armature is not None):
@@ -852,8 +865,8 @@ def _refuse(system: System, ch) -> None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
                          "in a system yet; expected a linear coil (with an [armature], an eddy term or both) "
                          "or a flux-linkage curve (no [armature]), one switch or a full bridge and a voltage-mode "
-                         "fixed, supply-table or closed-loop hold, or a current-mode hold (hysteretic on a curve; "
-                         "with an eddy term, a linear coil without [armature])")
+                         "fixed, supply-table or closed-loop hold, or a current-mode hold (with an eddy term, "
+                         "on a linear coil without [armature])")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:
