@@ -27,7 +27,8 @@ import pytest
 from typer.testing import CliRunner
 
 from conftest import BOARDS
-from rail_reference import assert_staggered_within_limit, linear_tail, manifold_copy, supply_corners
+from rail_reference import (assert_staggered_within_limit, linear_tail, manifold_copy, simulate_csv,
+                            supply_corners)
 
 from coildrive.cli import app
 from coildrive.config import load_drive
@@ -208,11 +209,7 @@ def test_simulate_and_the_channels_device(folder, system, tmp_path):
     from coildrive.cli.system_cmd import channel_drive
     from coildrive.design import design
 
-    out = tmp_path / "sim.csv"
-    r = CliRunner().invoke(app, ["simulate", str(folder), "--supply", "28", "--coil-temp", "0",
-                                 "--hold-time", "0.004", "--csv", str(out)])
-    assert r.exit_code == 0, r.output
-    csv = np.loadtxt(out, delimiter=",", skiprows=1)
+    csv = simulate_csv(folder, tmp_path, 0.004)
     ch = system["channels"][-1]
     bs = [b for b in ch["bound"]["branches"] if b["supply_low_v"] <= 28.0 <= b["supply_v"]]
     bound = np.max([_branch(csv[:, 0] - ch["offset_s"], b) for b in bs], axis=0)

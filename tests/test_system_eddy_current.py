@@ -23,7 +23,7 @@ import numpy as np
 import pytest
 from typer.testing import CliRunner
 
-from rail_reference import assert_staggered_within_limit, linear_tail
+from rail_reference import assert_staggered_within_limit, linear_tail, simulate_csv
 
 from coildrive.cli import app
 from coildrive.config import load_drive
@@ -185,11 +185,7 @@ def test_simulate_and_the_channels_device(doc, tmp_path):
     from coildrive.design import design
 
     sys, folder = doc
-    out = tmp_path / "sim.csv"
-    r = CliRunner().invoke(app, ["simulate", str(folder / "sys.toml"), "--supply", "28", "--coil-temp", "0",
-                                 "--hold-time", "0.002", "--csv", str(out)])
-    assert r.exit_code == 0, r.output
-    csv = np.loadtxt(out, delimiter=",", skiprows=1)
+    csv = simulate_csv(folder / "sys.toml", tmp_path, 0.002)
     ch = sys["channels"][-1]
     (b,) = ch["bound"]["branches"]
     t = csv[:, 0] - ch["offset_s"]

@@ -23,8 +23,8 @@
 
 A channel is a linear coil, with a moving armature (:mod:`coildrive.model.armature_bound`),
 an eddy term or both, or a flux-linkage curve (:mod:`coildrive.model.flux_bound`), on one
-switch or a full bridge; a latching coil and a boosted peak are refused in one line
-(:func:`_refuse`). A rail with a curve, an eddy term or a bridge on it takes its droop
+switch or a full bridge, or a latching coil (its pulses: :func:`_latch_bound_params`); a
+boosted peak is refused in one line (:func:`_refuse`). A rail with a curve, an eddy term or a bridge on it takes its droop
 from the rail-current bounds (:func:`bus_from_bound`).
 """
 
@@ -200,7 +200,10 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
     over the orbit's bottom is taken against the lowest bottom in the range (its lowest
     supply and readable duty, the hottest coil of the design's corners). With a moving
     armature the peak's rise is :func:`_armature_rise`'s (the open coil's while the armature
-    is proved to only close) and the tail is the seated coil's, one part."""
+    is proved to only close) and the tail is the seated coil's, one part. A latching
+    coil's: :func:`_latch_bound_params`."""
+    if is_latch(d):
+        return _latch_bound_params(d)
     drive = d.drive
     b = drive.board
     rate_tick = b.tick.rate
@@ -334,6 +337,78 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
                          "tail_inductance_h": [float(x) for x in ends[1:]],
                          "slow_resistance_ohm": r_slow, "pwm_period_s": settle_s})
     return {"reading_droop_v": reading_droop_v, **_summary(branches)}
+
+
+def is_latch(d) -> bool:
+    """True for a latching coil's design (its set and reset pulses, no hold)."""
+    return getattr(d, "latch", None) is not None
+
+
+def _latch_bound_params(d) -> dict:
+    """The branches of a latching coil's rail-current bound (:func:`draw_bound`): one per
+    pulse, the firmware firing either at the channel's start (docs/design-method.md, "A
+    latching coil"). The pulses are not looked up against the supply: each branch spans
+    ``[supply] min..max`` and takes its top. Over the pulse's ticks the rise as a peak's --
+    the winding's coldest loop, lowest resistance and inductance -- and with a moving
+    armature the set pulse's :func:`_armature_rise` (from the open stop), the reset pulse
+    of the same coil the any-motion bound from its start (``closing_s`` 0: it starts seated
+    and the reset moves it open). After the pulse no hold (``hold_top_a`` 0, settling at
+    once): the rail carries none of the decaying current through a freewheel across the
+    coil, a bridge's fast decay returns it (negative: taken as 0); only through a clamp
+    across the switch does it draw the coil's current, which falls at least as
+    ``exp(-R_off t/L_max)`` through the release path from the pulse's end (with the
+    any-motion bound, the flux linkage does, the current at most its over the open
+    inductance): the excess the pulse's end bound there, else 0."""
+    from .latch import winding_drive
+
+    drive = d.drive
+    v = drive.supply.max
+    branches = []
+    for p in d.latch.pulses:
+        wd = winding_drive(drive, p.name == "reset")
+        tol = envelope.tolerances(wd)
+        factors = {"diode_factor": tol.diode_factor, "fast_factor": tol.fast_factor, "sense_factor": tol.sense_factor}
+        lp = circuit.loop(wd, v, drive.ambient.min, tol.r_factor, tol.l_factor, **factors)
+        rel = circuit.loop(wd, v, drive.ambient.min, tol.r_factor, tol.l_factor, path="release", **factors)
+        r_on = float(np.min(lp.r_on))
+        l_min, l_max = float(np.min(lp.inductance)), float(np.max(lp.inductance))
+        tp = p.ticks / drive.board.tick.rate
+        branch = {"pulse": p.name, "supply_v": v, "supply_low_v": drive.supply.min, "resistance_ohm": r_on,
+                  "inductance_h": l_min, "peak_s": tp}
+        if wd.armature is not None:
+            branch.update(_armature_rise(wd.armature, v, r_on, l_min, l_max, tp))
+            if p.name == "reset":
+                branch["closing_s"] = 0.0
+        end = float(_branch_rise(tp, branch))
+        draws = wd.freewheel.type == "clamp" and not circuit.full_bridge(wd)
+        branches.append({**branch, "peak_end_a": end, "hold_top_a": 0.0, "excess_a": [end if draws else 0.0],
+                         "tail_inductance_h": [l_max], "slow_resistance_ohm": float(np.min(rel.r_off)),
+                         "pwm_period_s": 0.0})
+    return {"reading_droop_v": 0.0, **_summary(branches)}
+
+
+def _hold_average(d) -> float:
+    """A channel's hold current averaged over its PWM at its highest mean (A; a latching
+    coil has none)."""
+    return 0.0 if is_latch(d) else d.hold.max_mean_current_a * d.hold.duty
+
+
+def _latch_heat(name: str, d) -> dict:
+    """A latching coil's heat on the board (W): its pulses' freewheel and switch energies
+    averaged over its on/off cycle (``[duty]``: a set and a reset pulse each period), else
+    the larger pulse's every shortest interval (the most the design allows)."""
+    by = {p.name: p for p in d.latch.pulses}
+    cyc = d.latch.cycle
+    if cyc is not None:
+        fw = (by["set"].freewheel_j + by["reset"].freewheel_j) / cyc.period_s
+        sw = (by["set"].switch_sense_j + by["reset"].switch_sense_j) / cyc.period_s
+        basis = "on/off cycle average"
+    else:
+        interval = d.latch.interval_s if math.isfinite(d.latch.interval_s) and d.latch.interval_s > 0 else math.inf
+        fw = max(p.freewheel_j for p in by.values()) / interval
+        sw = max(p.switch_sense_j for p in by.values()) / interval
+        basis = "latching: a pulse every shortest interval"
+    return {"channel": name, "freewheel_w": fw, "switch_w": sw, "freewheel_basis": basis}
 
 
 def _armature_rise(arm, supply: float, r_on: float, lc_low: float, lc_high: float, peak_s: float) -> dict:
@@ -664,14 +739,15 @@ def system_drives(system: System) -> list:
     current-mode hold switches on its thresholds, not on the timer; its fixed-duty fallback
     (what the firmware starts the hold with or falls back to, :mod:`.hold_current`) runs on
     the timer's period at ``hold.frequency`` and takes part as a voltage-mode hold does. A
-    fixed off-time is the timer's own period, so it cannot share one."""
+    fixed off-time is the timer's own period, so it cannot share one. A latching coil has
+    no hold PWM: it takes no part in a shared timer."""
     board_ch = system.channels[0].drive.board.channels
     timer = system.channels[0].drive.board.timer
     channels = list(system.channels)
     seen: set[tuple[int, ...]] = set()
     for ch in system.channels:
         group = board_ch.group("timers", ch.number)
-        members = [c for c in channels if c.number in group]
+        members = [c for c in channels if c.number in group and c.drive.latch is None]
         if group in seen or len(members) < 2:
             continue
         seen.add(group)
@@ -695,6 +771,7 @@ def system_drives(system: System) -> list:
 def design_system(system: System) -> SystemResult:
     """Design every channel of ``system`` together (module docstring)."""
     from . import design
+    from .latch import design_latch
 
     board_ch = system.channels[0].drive.board.channels
     timer = system.channels[0].drive.board.timer
@@ -707,7 +784,7 @@ def design_system(system: System) -> SystemResult:
     seen: set[tuple[int, ...]] = set()
     for ch in channels:
         group = board_ch.group("timers", ch.number)
-        members = [c for c in channels if c.number in group]
+        members = [c for c in channels if c.number in group and c.drive.latch is None]
         if group in seen or len(members) < 2:
             continue
         seen.add(group)
@@ -715,13 +792,19 @@ def design_system(system: System) -> SystemResult:
         timers.append({"channels": [c.name for c in members], "board_channels": list(group),
                        "prescaler": p, "period_ticks": n, "frequency_hz": timer.clock / (p * n),
                        "compare_ticks": {}})
-    designs = [design(c.drive) for c in channels]
+    designs = [design_latch(c.drive) if c.drive.latch is not None else design(c.drive) for c in channels]
     for t in timers:
         for c, d in zip(channels, designs):
             if c.name in t["channels"]:
                 t["compare_ticks"][c.name] = d.timer.compare_ticks
     for c, d in zip(channels, designs):
-        if d.pull_in.peak_ticks is None:
+        if is_latch(d):
+            for p in d.latch.pulses:
+                if p.ticks is None:
+                    raise InputError(c.drive.source, "reset.current" if p.name == "reset" else "pull_in.current",
+                                     f"channel {c.name!r}: {p.not_reached}, so its {p.name} pulse has no length "
+                                     "to stagger")
+        elif d.pull_in.peak_ticks is None:
             raise InputError(c.drive.source, "pull_in.current",
                              f"channel {c.name!r}: {d.pull_in.not_reached}, so it has no peak to stagger")
     tick = 1.0 / channels[0].drive.board.tick.rate
@@ -768,8 +851,7 @@ def design_system(system: System) -> SystemResult:
                 "only per channel against its drive file's [supply] sink and capacitance, not for several "
                 "releasing together -- keep their releases apart or let the supply sink the current, and "
                 "check the bus capacitor's rating", severity="warning"))
-    hold_avg = {name: sum(designs[k].hold.max_mean_current_a * designs[k].hold.duty for k in ks)
-                for name, ks in rails.items()}
+    hold_avg = {name: sum(_hold_average(designs[k]) for k in ks) for name, ks in rails.items()}
     droop = _droop(system, channels, designs, rails, offsets, params)
     heat = _heat(board_ch, channels, designs)
     out = [SystemChannel(c.name, c.number, c.drive.source, offset_ticks[k], offsets[k],
@@ -804,7 +886,8 @@ def _consistent(designs, ks: list[int], offsets, r_s: float) -> tuple[tuple[floa
         got = bound(delta)
         if r_s * got[0] <= delta:
             return got, delta
-    delta = r_s * sum(designs[k].drive.supply.max / min(c.resistance_ohm for c in designs[k].corners)
+    delta = r_s * sum(designs[k].drive.supply.max / min(b["resistance_ohm"] for b in
+                                                        channel_bound_params(designs[k])["branches"])
                       for k in ks)
     return bound(delta), delta
 
@@ -848,14 +931,12 @@ def _refuse(system: System, ch) -> None:
     """What the rail's current bound is made for: a linear coil (with a moving armature,
     an eddy term or both) or a flux-linkage curve (no armature), on one switch or a full
     bridge, under a voltage-mode (fixed, supply-table or closed-loop) hold or a
-    current-mode one (with an eddy term, on a linear coil without an armature). Anything
-    else is refused in one line."""
+    current-mode one (with an eddy term, on a linear coil without an armature), or a
+    latching coil. Anything else is refused in one line."""
     d = ch.drive
     why = None
     if d.coil.flux_current and d.armature is not None:
         key, why = "armature", "a moving armature with a flux-linkage curve"
-    elif d.hold.mode == "latch":
-        key, why = "hold.mode", "a latching coil"
     elif d.coil.eddy_resistance and d.hold.mode == "current" and (d.coil.flux_current or d.armature is not None):
         key, why = ("coil.eddy_resistance",
                     "an eddy-current term with a current-mode hold on a flux-linkage curve or an [armature]")
@@ -865,8 +946,8 @@ def _refuse(system: System, ch) -> None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
                          "in a system yet; expected a linear coil (with an [armature], an eddy term or both) "
                          "or a flux-linkage curve (no [armature]), one switch or a full bridge and a voltage-mode "
-                         "fixed, supply-table or closed-loop hold, or a current-mode hold (with an eddy term, "
-                         "on a linear coil without [armature])")
+                         "fixed, supply-table or closed-loop hold, a current-mode hold (with an eddy term, "
+                         "on a linear coil without [armature]), or a latching coil")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:
@@ -890,7 +971,7 @@ def _droop(system: System, channels, designs, rails, offsets, params) -> dict:
     out = {}
     for name, ks in rails.items():
         if any(designs[k].drive.coil.flux_current or designs[k].drive.coil.eddy_resistance
-               or designs[k].drive.switch.topology == "full_bridge" for k in ks):
+               or designs[k].drive.switch.topology == "full_bridge" or is_latch(designs[k]) for k in ks):
             out[name] = _droop_bound(system, channels, designs, ks, offsets, params)
             continue
         r_on, r_off, v_off, l, tp, duty = [], [], [], [], [], []
@@ -957,8 +1038,7 @@ def _droop_bound(system: System, channels, designs, ks, offsets, params) -> dict
             "droop_method": ("a bound from the channels' rail-current bounds at the lowest supply, peaks "
                              "and holds (a saturating coil, an eddy term or a full bridge is on the rail; a "
                              "bridge's fast decay returning energy only lifts the bus)"),
-            "hold_droop_v": s.source_resistance * sum(
-                designs[k].hold.max_mean_current_a * designs[k].hold.duty for k in ks)}
+            "hold_droop_v": s.source_resistance * sum(_hold_average(designs[k]) for k in ks)}
 
 
 def _heat(board_ch, channels, designs) -> dict:
@@ -967,6 +1047,9 @@ def _heat(board_ch, channels, designs) -> dict:
     the shared freewheel parts' sums; and the board's total."""
     per = []
     for c, d in zip(channels, designs):
+        if is_latch(d):
+            per.append(_latch_heat(c.name, d))
+            continue
         cyc = d.thermal_cycle.freewheel if d.thermal_cycle is not None else None
         fw = cyc["average_power_w"] if cyc else d.hold.freewheel_power_w
         per.append({"channel": c.name, "freewheel_w": fw, "switch_w": d.hold.switch_power_w,

@@ -11,6 +11,8 @@ conducts). Stiff bus: the source resistance's droop is not fed back into the coi
 A current-mode channel runs its own actuation
 (:func:`coildrive.design.hold_current.current_mode_actuation`: the nominal thresholds
 switch it, each edge a sample), on at its start offset for the peak its firmware picks.
+A latching channel (:func:`latch_run`) fires its set pulse at its start offset and its
+reset pulse ``hold_time`` later (at least its shortest interval).
 Any other channel with a moving armature, a flux-linkage curve, an eddy-current term or a full
 bridge runs the model's own single-channel actuation
 (:func:`coildrive.model.waveform.actuation`) as the reference driver switches it, in its
@@ -35,6 +37,7 @@ from ..model.circuit import full_bridge, loop, split_decay
 from ..model.shared_pwm import ChannelRun, channel_run
 from ..model.waveform import actuation
 from .firmware import firmware_setting
+from .system import is_latch
 from .result import SystemResult
 
 
@@ -78,7 +81,7 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
     from ..errors import InputError
     from .core import MAX_WAVEFORM_SAMPLES
 
-    f_max = max(c.design.hold.frequency_hz for c in result.channels)
+    f_max = max([c.design.hold.frequency_hz for c in result.channels if not is_latch(c.design)] + [1.0])
     samples = len(result.channels) * (2.0 * points * hold_time * f_max + 80.0 * points) * 2
     if not samples <= MAX_WAVEFORM_SAMPLES:
         raise InputError("--hold-time", "", f"{hold_time:g} s of hold on {len(result.channels)} channels "
@@ -89,6 +92,12 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
     for c in result.channels:
         d = c.design
         drv = d.drive
+        if is_latch(d):
+            runs.append(latch_run(d, supply, coil_temp, hold_time, r_factor, l_factor, 40 * points))
+            starts.append(c.offset_s)
+            periods.append(0.0)
+            duties.append(0.0)
+            continue
         duty, peak = firmware_setting(d, supply, coil_temp)
         period = 1.0 / d.hold.frequency_hz
         periods.append(period)
@@ -131,6 +140,53 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
     rail = np.sum(draw, axis=0)
     return SystemRun([c.name for c in result.channels], t, rail, current, on, runs, periods, duties,
                      draw, starts)
+
+
+@dataclass(frozen=True)
+class LatchRun:
+    """A latching coil's set and reset pulses as :func:`on_grid` reads a run: ``time`` (s
+    from the set pulse's switch-on), ``current`` (A, the pulsing winding's, its magnitude),
+    ``switch_on`` (0/1, a pulse's switches), ``switches`` (a full bridge's: both pulses'
+    pairs, so that all four open with current flowing is its fast decay into the rail;
+    else ``None``)."""
+
+    time: np.ndarray
+    current: np.ndarray
+    switch_on: np.ndarray
+    switches: dict | None
+
+
+def latch_run(d, supply: float, coil_temp: float, hold_time: float, r_factor: float, l_factor: float,
+              points: int) -> LatchRun:
+    """A latching channel in ``simulate SYSTEM.toml``: its set pulse at its start, its reset
+    pulse ``hold_time`` s later (at least the design's shortest interval, and after the set
+    pulse's decay), each the winding's own pulse and decay
+    (:func:`coildrive.model.latch_waveform.pulse`)."""
+    from ..model.latch_waveform import pulse
+    from .latch import winding_drive
+
+    by = {p.name: p for p in d.latch.pulses}
+    drive = d.drive
+    ts, is_, ons, _, tz, _, _ = pulse(drive, supply, coil_temp, r_factor, l_factor, by["set"].time_s, points)
+    tr, ir, onr, _, _, _, _ = pulse(winding_drive(drive, True), supply, coil_temp, r_factor, l_factor,
+                                    by["reset"].time_s, points)
+    interval = d.latch.interval_s if math.isfinite(d.latch.interval_s) else 0.0
+    gap = max(hold_time, interval, tz)
+    (ts, is_, ons), (tr, ir, onr) = (_off_edge(ts, is_, ons), _off_edge(tr, ir, onr))
+    on = np.concatenate([ons, onr]).astype(np.int8)
+    switches = None
+    if full_bridge(drive):
+        pair_set = np.concatenate([ons, 0 * onr]).astype(np.int8)
+        pair_reset = np.concatenate([0 * ons, onr]).astype(np.int8)
+        switches = {"Q1": pair_set, "Q4": pair_set, "Q3": pair_reset, "Q2": pair_reset}
+    return LatchRun(np.concatenate([ts, gap + tr]), np.abs(np.concatenate([is_, ir])), on, switches)
+
+
+def _off_edge(t, i, on):
+    """A pulse's samples with its end repeated, off: on a grid the switch is then off at
+    once after the pulse (:func:`on_grid` keeps the value after a step)."""
+    k = int(np.flatnonzero(on)[-1]) + 1
+    return np.insert(t, k, t[k - 1]), np.insert(i, k, i[k - 1]), np.insert(on, k, 0)
 
 
 def own_waveform(drive) -> bool:
