@@ -107,6 +107,7 @@ BOUNDS: dict[str, tuple[float, float, str]] = {
     "supply.boost_capacitance_tolerance": (0.0, 0.9, "dimensionless"),
     "supply.boost_resistance": (0.0, 100.0, "resistance"),
     "supply.boost_power": (1e-3, 100e3, "power"),
+    "supply.boost_efficiency": (0.05, 1.0, "dimensionless"),
     "ambient.min": (-75.0, 200.0, "temperature"),
     "ambient.max": (-75.0, 200.0, "temperature"),
     "thermal.resistance": (0.0, 10e3, "thermal_resistance"),
@@ -184,7 +185,7 @@ _ZERO_MEANS_UNSET = frozenset((
     "hold.band", "hold.off_time", "hold.max_frequency", "timer.max_pwm_frequency",
     "switch.rise_time", "switch.fall_time", "switch.power_rating", "freewheel.zener_voltage",
     "supply.capacitance", "supply.capacitor_voltage", "supply.source_resistance",
-    "supply.boost", "supply.boost_capacitance", "supply.boost_power",
+    "supply.boost", "supply.boost_capacitance", "supply.boost_power", "supply.boost_efficiency",
     "freewheel.resistance", "freewheel.clamp_voltage", "freewheel.diode_power_rating",
     "freewheel.zener_power_rating", "freewheel.resistor_power_rating",
     "freewheel.clamp_power_rating", "freewheel.bypass_power_rating",
@@ -286,7 +287,10 @@ class Supply:
     threshold (:mod:`coildrive.model.boost`), within ``boost_tolerance`` (fraction); from a
     capacitor of ``boost_capacitance`` (F, 0 = an ideal source) within
     ``boost_capacitance_tolerance`` (fraction), through ``boost_resistance`` (ohm: the boost
-    switch and the capacitor's ESR), recharged at ``boost_power`` (W, 0 = not given).
+    switch and the capacitor's ESR), recharged at ``boost_power`` (W, 0 = not given);
+    ``boost_efficiency`` (fraction, 0 = not given) is the boost converter's: the power it
+    draws from the main supply is its output over it (a boosted channel in a system file
+    needs it, :mod:`coildrive.design.system`).
     """
 
     min: float
@@ -302,6 +306,7 @@ class Supply:
     boost_capacitance_tolerance: float = 0.0
     boost_resistance: float = 0.0
     boost_power: float = 0.0
+    boost_efficiency: float = 0.0
 
     @property
     def boosted(self) -> bool:
@@ -708,7 +713,7 @@ _LATER_FIELDS = (
     (("pull_in",), PullIn, ("current_margin", "settle_time", "compensate")),
     (("supply",), Supply, ("sink", "capacitance", "capacitor_voltage", "source_resistance", "boost",
                            "boost_tolerance", "boost_capacitance", "boost_capacitance_tolerance",
-                           "boost_resistance", "boost_power")),
+                           "boost_resistance", "boost_power", "boost_efficiency")),
     (("board", "sense"), Sense, ("resistance_tolerance", "gain_tolerance")),
     (("board", "supply_sense"), SupplySense, ("divider_tolerance",)),
     (("switch",), Switch, ("rise_time", "fall_time", "power_rating", "power_derating", "topology")),
@@ -1454,12 +1459,12 @@ def _read_boost(s: "_Section") -> tuple:
     """The ``[supply]`` boost keys, in :class:`Supply`'s order (all 0 without ``boost``)."""
     boost = s.quantity("boost", "voltage", 0.0, nonnegative=True)
     keys = ("boost_tolerance", "boost_capacitance", "boost_capacitance_tolerance", "boost_resistance",
-            "boost_power")
+            "boost_power", "boost_efficiency")
     if not boost > 0:
         for key in keys:
             if key in s.table:
                 raise s.fail(key, "given without supply.boost, expected the boost voltage too")
-        return (0.0,) * 6
+        return (0.0,) * 7
     cap = s.quantity("boost_capacitance", "capacitance", 0.0, nonnegative=True)
     power = s.quantity("boost_power", "power", 0.0, nonnegative=True)
     if cap > 0 and not power > 0:
@@ -1467,7 +1472,8 @@ def _read_boost(s: "_Section") -> tuple:
                      "expected the charging power (e.g. \"10 W\")")
     return (boost, s.fraction("boost_tolerance", 0.0), cap,
             s.fraction("boost_capacitance_tolerance", 0.0),
-            s.quantity("boost_resistance", "resistance", 0.0, nonnegative=True), power)
+            s.quantity("boost_resistance", "resistance", 0.0, nonnegative=True), power,
+            s.fraction("boost_efficiency", 0.0, below_one=False))
 
 
 def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, freewheel: Freewheel,

@@ -23,8 +23,9 @@
 
 A channel is a linear coil, with a moving armature (:mod:`coildrive.model.armature_bound`),
 an eddy term or both, or a flux-linkage curve (:mod:`coildrive.model.flux_bound`), on one
-switch or a full bridge, or a latching coil (its pulses: :func:`_latch_bound_params`); a
-boosted peak is refused in one line (:func:`_refuse`). A rail with a curve, an eddy term or a bridge on it takes its droop
+switch or a full bridge, or a latching coil (its pulses: :func:`_latch_bound_params`), or a
+boosted peak (its converter's draw: :func:`_boost_keys`); what is not is refused in one
+line (:func:`_refuse`). A rail with a curve, an eddy term or a bridge on it takes its droop
 from the rail-current bounds (:func:`bus_from_bound`).
 """
 
@@ -91,7 +92,10 @@ TAIL_SPLITS = 6
 def _branch_rise(t, b: dict):
     """The bound (A) of one branch's peak ``t`` s after switch-on: the stiff-bus rise
     ``V/R (1 - exp(-t R/L))``, or with a moving armature
-    :func:`~coildrive.model.armature_bound.peak_rise`."""
+    :func:`~coildrive.model.armature_bound.peak_rise`, or a boosted peak's
+    (:func:`_boost_rise`)."""
+    if "boost_v" in b:
+        return _boost_rise(t, b)
     if "rise_time_s" in b:
         return flux_bound.table_current(t, b["rise_time_s"], b["rise_current_a"])
     if "eddy_resistance_ohm" in b:
@@ -127,6 +131,8 @@ def _branch_parts(t, b: dict):
         return rise, flux_bound.table_current(left, b["tail_flux_wb"], b["tail_current_a"])
     tail = b["hold_top_a"] + np.max([e * np.exp(-age * b["slow_resistance_ohm"] / l)
                                      for e, l in zip(b["excess_a"], b["tail_inductance_h"])], axis=0)
+    if "converter_until_s" in b:      # a boosted peak's converter, recharging its capacitor
+        tail = tail + np.where(t < b["converter_until_s"], b["converter_a"], 0.0)
     return rise, tail
 
 
@@ -282,7 +288,12 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             # the tail on the magnetising current, decaying at the slowest Thevenin rate
             r_low = np.minimum(top_cold.r_on, top_cold.r_off)
             r_slow_eddy = float(np.min(r_eddy * r_low / (r_low + r_eddy)))
-        if drive.armature is not None and r_eddy is not None:
+        if drive.supply.boosted:
+            branch.update(_boost_keys(d, hi, r_on, l_min, hold_top, bottom, reading_droop_v))
+            i_pe = np.array([d.boost.end_current_max_a])
+            ends = np.array([l_min, l_max])
+            peak_end["a"] = float(_branch_rise(tp, branch))
+        elif drive.armature is not None and r_eddy is not None:
             # the armature's bound on the magnetising current, which sees the Thevenin pair
             # (the closing window and the earliest start on it); the rail the terminal current
             # on it; the tail the eddy term's (below) on the seated coil: one part
@@ -409,6 +420,61 @@ def _latch_heat(name: str, d) -> dict:
         sw = max(p.switch_sense_j for p in by.values()) / interval
         basis = "latching: a pulse every shortest interval"
     return {"channel": name, "freewheel_w": fw, "switch_w": sw, "freewheel_basis": basis}
+
+
+def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bottom: float,
+                reading_droop_v: float) -> dict:
+    """The keys a boosted peak's branch adds (docs/design-method.md, "A boosted peak"): the
+    coil's current from switch-on is at most the rise ``V_b/R (1 - exp(-t R/L))`` from the
+    boost at its highest through the coldest on-loop (the capacitor's voltage only falls,
+    the boost path's resistance only slows it, and after the threshold the main supply
+    drives less), and never above ``coil_top_a``. Under a voltage-mode hold from the main
+    supply at ``v_hi`` V the PWM's period map is increasing and contracts onto its orbit,
+    so from the trip at ``I <= I_end`` (the highest end current) every period starts at
+    most at ``max(I, B)`` (``B`` the orbit's start) and rises within two periods (the first
+    may start late) by at most ``(V/R - c)(1 - exp(-2 T R/L))``: ``coil_top_a`` is the
+    larger of that from ``I_end`` and the hold's top; under a current-mode hold the tail's
+    value at the end, the hold's top plus ``I_end`` less the bottom. The boost
+    converter draws its output over ``supply.boost_efficiency`` from the rail at its lowest
+    (``[supply] min`` less the reading's droop, ``reading_droop_v``): with a capacitor a
+    constant ``boost_power`` from switch-on until the energy one peak takes is back
+    (``converter_until_s``: the time-out plus the recharge time), with an ideal boost the
+    coil's current times ``V_b`` while the peak runs from it."""
+    drive = d.drive
+    s, bst = drive.supply, d.boost
+    v_low = max(s.min - reading_droop_v, 1e-3)
+    i_end = bst.end_current_max_a
+    if d.hold.mode == "current":
+        coil_top = hold_top + max(0.0, i_end - bottom)
+    else:
+        a = v_hi / r_on
+        coil_top = max(hold_top, i_end + max(0.0, a - i_end) * -math.expm1(-2.0 / d.hold.frequency_hz * r_on / l_min))
+    out = {"boost_v": bst.boost_max_v, "resistance_ohm": r_on, "inductance_h": l_min, "coil_top_a": coil_top,
+           "boost_efficiency": s.boost_efficiency}
+    if bst.capacitance_f > 0:
+        converter = bst.power_w / (s.boost_efficiency * v_low)
+        out.update({"converter_a": converter, "converter_until_s": d.pull_in.peak_ticks / drive.board.tick.rate
+                    + bst.recharge_time_s, "top_a": converter + coil_top})
+    else:
+        out.update({"feed_ratio": bst.boost_max_v / (s.boost_efficiency * v_low),
+                    "feed_end_a": bst.end_current_max_a})
+        out["top_a"] = max(out["feed_ratio"] * bst.end_current_max_a, coil_top)
+    return out
+
+
+def _boost_rise(t, b: dict):
+    """A boosted branch's peak bound (A) ``t`` s after switch-on (:func:`_boost_keys`): with
+    a capacitor, the converter's draw plus the coil's current (counted as the rail's even
+    while the capacitor feeds it); with an ideal boost, the larger of the converter feeding
+    the coil and the coil's own current. Non-decreasing in ``t``."""
+    t = np.asarray(t, float)
+    coil = np.minimum(b["boost_v"] / b["resistance_ohm"] * -np.expm1(-np.clip(t, 0.0, None) * b["resistance_ohm"]
+                                                                       / b["inductance_h"]), b["coil_top_a"])
+    if "converter_a" in b:
+        got = b["converter_a"] + coil
+    else:
+        got = np.maximum(b["feed_ratio"] * np.minimum(coil, b["feed_end_a"]), coil)
+    return np.where(t < 0, 0.0, got)
 
 
 def _armature_rise(arm, supply: float, r_on: float, lc_low: float, lc_high: float, peak_s: float) -> dict:
@@ -555,15 +621,18 @@ def _eddy_current_hold(th, cold, low: float, settle: float) -> tuple[float, floa
 
 def _summary(branches: list[dict]) -> dict:
     """``branches`` and what :func:`stagger_bound` reads of them: the longest peak, the
-    PWM period, the highest hold top, the largest excess, the highest hold top plus excess
-    and the slowest decay rate (1/s)."""
+    PWM period, the highest hold top, the largest excess, the highest hold top plus excess,
+    the slowest decay rate (1/s) and ``busy_s``, from switch-on to the end of the first
+    PWM period after the longest peak or of a boost converter's recharge, the later."""
     return {"branches": branches,
             "peak_s": max(x["peak_s"] for x in branches),
             "pwm_period_s": max(x["pwm_period_s"] for x in branches),
             "hold_top_a": max(x["hold_top_a"] for x in branches),
             "excess_a": max(x["excess_a"][0] for x in branches),
             "top_a": max(x.get("top_a", x["hold_top_a"] + x["excess_a"][0]) for x in branches),
-            "rate_per_s": min(x["slow_resistance_ohm"] / x["tail_inductance_h"][-1] for x in branches)}
+            "rate_per_s": min(x["slow_resistance_ohm"] / x["tail_inductance_h"][-1] for x in branches),
+            "busy_s": max([max(x["peak_s"] for x in branches) + max(x["pwm_period_s"] for x in branches)]
+                          + [x.get("converter_until_s", 0.0) for x in branches])}
 
 
 def supply_cells(params: list[dict]) -> list[tuple[float, float, list[list[int]]]]:
@@ -620,7 +689,7 @@ def _piece_rows(params: list[dict], offsets: np.ndarray):
     marks = [offsets]
     for o, p in zip(offsets, params):
         for b in p["branches"]:
-            marks += [[o + b["peak_s"], o + b["peak_s"] + b["pwm_period_s"]]]
+            marks += [[o + b["peak_s"], o + b["peak_s"] + b["pwm_period_s"], o + b.get("converter_until_s", 0.0)]]
     moments = np.unique(np.concatenate(marks))
     moments = np.append(moments, moments[-1] + PIECE_S)
     count = np.maximum(np.ceil(np.diff(moments) / PIECE_S).astype(int), 1)
@@ -692,8 +761,8 @@ def _stagger_bound_cell(params: list[dict], positions: list[int], fixed: list[fl
     still = [k for k in range(n) if k not in moving]
     start = [0.0 if f is None else f for f in fixed]
     top_still = total_bound([params[k] for k in still], [start[k] for k in still])[0] if still else 0.0
-    reach = max([start[k] + params[k]["peak_s"] + params[k]["pwm_period_s"] for k in still] + [0.0])
-    wait = max([reach] + [p["peak_s"] + p["pwm_period_s"] for p in params])
+    reach = max([start[k] + params[k]["busy_s"] for k in still] + [0.0])
+    wait = max([reach] + [p["busy_s"] for p in params])
     holds = sum(params[k]["hold_top_a"] for k in still)
     l_inf, worst = top_still, "the channels that start at fixed times, together"
     for k in moving:
@@ -940,14 +1009,19 @@ def _refuse(system: System, ch) -> None:
     elif d.coil.eddy_resistance and d.hold.mode == "current" and (d.coil.flux_current or d.armature is not None):
         key, why = ("coil.eddy_resistance",
                     "an eddy-current term with a current-mode hold on a flux-linkage curve or an [armature]")
-    elif d.supply.boosted:
-        key, why = "supply.boost", "a boosted peak"
+    elif d.supply.boosted and d.coil.eddy_resistance:
+        key, why = "supply.boost", "a boosted peak with an eddy-current term"
+    elif d.supply.boosted and not d.supply.boost_efficiency > 0:
+        raise InputError(d.source, "supply.boost_efficiency", f"missing: channel {ch.name!r} of {system.source} "
+                         "has a boosted peak, whose converter draws from the shared rail, expected its efficiency "
+                         "(e.g. 0.85)")
     if why is not None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
                          "in a system yet; expected a linear coil (with an [armature], an eddy term or both) "
                          "or a flux-linkage curve (no [armature]), one switch or a full bridge and a voltage-mode "
                          "fixed, supply-table or closed-loop hold, a current-mode hold (with an eddy term, "
-                         "on a linear coil without [armature]), or a latching coil")
+                         "on a linear coil without [armature]), or a latching coil; a boosted peak without an "
+                         "eddy term")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:
@@ -971,7 +1045,8 @@ def _droop(system: System, channels, designs, rails, offsets, params) -> dict:
     out = {}
     for name, ks in rails.items():
         if any(designs[k].drive.coil.flux_current or designs[k].drive.coil.eddy_resistance
-               or designs[k].drive.switch.topology == "full_bridge" or is_latch(designs[k]) for k in ks):
+               or designs[k].drive.switch.topology == "full_bridge" or is_latch(designs[k])
+               or designs[k].drive.supply.boosted for k in ks):
             out[name] = _droop_bound(system, channels, designs, ks, offsets, params)
             continue
         r_on, r_off, v_off, l, tp, duty = [], [], [], [], [], []

@@ -11,6 +11,10 @@ conducts). Stiff bus: the source resistance's droop is not fed back into the coi
 A current-mode channel runs its own actuation
 (:func:`coildrive.design.hold_current.current_mode_actuation`: the nominal thresholds
 switch it, each edge a sample), on at its start offset for the peak its firmware picks.
+A boosted channel runs its own actuation (the peak from the boost until its threshold at
+the nominal sense chain, the hold from the main supply), on at its start offset; its draw
+from the rail is :func:`boost_draw` (the converter's input in place of the peak's coil
+current).
 A latching channel (:func:`latch_run`) fires its set pulse at its start offset and its
 reset pulse ``hold_time`` later (at least its shortest interval).
 Any other channel with a moving armature, a flux-linkage curve, an eddy-current term or a full
@@ -89,6 +93,7 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
                          f"{samples:,.0f} samples, more than the {MAX_WAVEFORM_SAMPLES:,} one run may "
                          "have: shorten --hold-time or lower --points")
     runs, periods, duties, starts = [], [], [], []
+    boosts: dict[int, float] = {}      # a boosted channel's peak (s), by its run
     for c in result.channels:
         d = c.design
         drv = d.drive
@@ -110,6 +115,13 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
                                                r_factor, l_factor, points, label=c.name))
             starts.append(c.offset_s)
             continue
+        if drv.supply.boosted:
+            # the peak ends at the current threshold, not on the timer: on at the offset
+            runs.append(actuation(drv, supply, coil_temp, peak, duty, d.hold.frequency_hz, hold_time,
+                                  r_factor, l_factor, points, label=c.name))
+            starts.append(c.offset_s)
+            boosts[len(runs) - 1] = peak
+            continue
         if own_waveform(drv):
             t_on, t_peak = driver_peak(c.offset_s, peak, period)
             runs.append(actuation(drv, supply, coil_temp, t_peak, duty, d.hold.frequency_hz, hold_time,
@@ -126,7 +138,13 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
     t = np.unique(np.concatenate([r.samples(points) if isinstance(r, ChannelRun) else r.time + s0
                                   for r, s0 in zip(runs, starts)]))
     current, on, draw = [], [], []
-    for r, s0 in zip(runs, starts):
+    for k, (r, s0) in enumerate(zip(runs, starts)):
+        if k in boosts:
+            i, sw, back = on_grid(r, s0, t)
+            current.append(i)
+            on.append(sw)
+            draw.append(boost_draw(result.channels[k].design.drive, r, s0, boosts[k], supply, t, i, sw))
+            continue
         if isinstance(r, ChannelRun):
             i, sw = r.current(t), r.switch_on(t)
             current.append(i)
@@ -180,6 +198,25 @@ def latch_run(d, supply: float, coil_temp: float, hold_time: float, r_factor: fl
         pair_reset = np.concatenate([0 * ons, onr]).astype(np.int8)
         switches = {"Q1": pair_set, "Q4": pair_set, "Q3": pair_reset, "Q2": pair_reset}
     return LatchRun(np.concatenate([ts, gap + tr]), np.abs(np.concatenate([is_, ir])), on, switches)
+
+
+def boost_draw(drive, w, start: float, peak: float, supply: float, t, i, sw) -> np.ndarray:
+    """A boosted channel's current from the rail (A) on the grid ``t`` (s): its coil's
+    current while its switch conducts, except in the peak (the boost feeds it; the main
+    supply's diode blocks), plus its boost converter's input, its output over
+    ``supply.boost_efficiency`` at the bus ``supply`` V: with a capacitor ``boost_power``
+    while the capacitor is below its full charge (its discharge in the peak, then the
+    recharge), with an ideal boost ``V_b i`` in the peak."""
+    s = drive.supply
+    rel = t - start
+    in_peak = (rel >= 0) & (rel < peak)
+    coil = np.where(in_peak, 0.0, i * sw)
+    if s.boost_capacitance > 0:
+        trace = w.boost_voltage
+        level = np.interp(rel, w.time, trace, left=trace[0], right=trace[-1])
+        charging = (rel >= 0) & (level < trace[0] * (1 - 1e-9))
+        return coil + np.where(charging | in_peak, s.boost_power / (s.boost_efficiency * supply), 0.0)
+    return coil + np.where(in_peak, s.boost * i / (s.boost_efficiency * supply), 0.0)
 
 
 def _off_edge(t, i, on):
