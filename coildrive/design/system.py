@@ -398,6 +398,14 @@ def _latch_bound_params(d) -> dict:
     return {"reading_droop_v": 0.0, **_summary(branches)}
 
 
+def _lowest_resistance(d) -> float:
+    """A channel's lowest loop resistance (ohm): its design's corners', or a latching coil's
+    pulses' (its bound's branches)."""
+    if is_latch(d):
+        return min(b["resistance_ohm"] for b in _latch_bound_params(d)["branches"])
+    return min(c.resistance_ohm for c in d.corners)
+
+
 def _hold_average(d) -> float:
     """A channel's hold current averaged over its PWM at its highest mean (A; a latching
     coil has none)."""
@@ -955,9 +963,7 @@ def _consistent(designs, ks: list[int], offsets, r_s: float) -> tuple[tuple[floa
         got = bound(delta)
         if r_s * got[0] <= delta:
             return got, delta
-    delta = r_s * sum(designs[k].drive.supply.max / min(b["resistance_ohm"] for b in
-                                                        channel_bound_params(designs[k])["branches"])
-                      for k in ks)
+    delta = r_s * sum(designs[k].drive.supply.max / _lowest_resistance(designs[k]) for k in ks)
     return bound(delta), delta
 
 
