@@ -1007,7 +1007,11 @@ def _refuse(system: System, ch) -> None:
     an eddy term or both) or a flux-linkage curve (no armature), on one switch or a full
     bridge, under a voltage-mode (fixed, supply-table or closed-loop) hold or a
     current-mode one (with an eddy term, on a linear coil without an armature), or a
-    latching coil. Anything else is refused in one line."""
+    latching coil, or a boosted peak. Anything else is refused in one line: a curve with a
+    moving armature (the closing armature's current is not proved to stay under the open
+    curve's rise, docs/design-method.md, "A flux-linkage curve"), an eddy term under a
+    current-mode hold on a curve or with an armature, a boosted peak with an eddy term, and
+    a boosted peak without ``supply.boost_efficiency`` (its converter's draw)."""
     d = ch.drive
     why = None
     if d.coil.flux_current and d.armature is not None:
