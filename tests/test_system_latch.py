@@ -24,7 +24,7 @@ import numpy as np
 import pytest
 from typer.testing import CliRunner
 
-from conftest import BOARDS, require_tool
+from conftest import BOARDS, require_tool, run_cli
 from rail_reference import assert_staggered_within_limit, linear_tail, manifold_copy, simulate_csv
 
 from coildrive.cli import app
@@ -188,13 +188,9 @@ def test_header_has_the_pulses_and_compiles(doc, tmp_path):
 def test_simulate_and_the_channels_device(doc, tmp_path):
     """``simulate SYSTEM.toml``: purge2 fires its set pulse at its start and its reset pulse
     ``--hold-time`` later, each pulse's draw never above its branch from its own start (28
-    V, cold, on the CSV's grid; a bridge's decay negative in the rail); ``emulate --channel purge2`` serves the latching
-    device with the design's pulses. Both run the model's own pulses: plumbing."""
-    from coildrive.bench.latch_device import LatchDevice
-    from coildrive.bench.device import DeviceOptions
-    from coildrive.cli.system_cmd import channel_drive
-    from coildrive.design.latch import design_latch
-
+    V, cold, on the CSV's grid; a bridge's decay negative in the rail); ``emulate SYSTEM.toml
+    --channel purge2`` (a real subprocess) serves the latching device with the design's
+    pulses. Both run the model's own pulses: plumbing."""
     system, path = doc[0]["system"], doc[1]
     csv = simulate_csv(path, tmp_path, 0.1)
     ch = system["channels"][-1]
@@ -208,6 +204,6 @@ def test_simulate_and_the_channels_device(doc, tmp_path):
     first = t < 0.1
     assert np.all(draw[first] <= _branch(t[first], branches["set"]) + 1e-9)
     assert np.all(draw[~first] <= _branch(t[~first] - 0.1, branches["reset"]) + 1e-9)
-    d = design_latch(channel_drive(path, None, "purge2"))
-    dev = LatchDevice(d, DeviceOptions(supply=24.0))
-    assert dev.pulse_time("set") == pytest.approx(pulses["set"])
+    r = run_cli("emulate", str(path), "--channel", "purge2", "--duration", "0.3")
+    assert r.returncode == 0 and r.stdout.startswith("/dev/"), r.stderr
+    assert f"latching coil: set pulse {pulses['set'] * 1e3:.4g} ms" in r.stderr, r.stderr
