@@ -107,7 +107,7 @@ BOUNDS: dict[str, tuple[float, float, str]] = {
     "supply.boost_capacitance_tolerance": (0.0, 0.9, "dimensionless"),
     "supply.boost_resistance": (0.0, 100.0, "resistance"),
     "supply.boost_power": (1e-3, 100e3, "power"),
-    "supply.boost_draw": (0.0, 100e3, "power"),
+    "supply.boost_efficiency": (0.05, 1.0, "dimensionless"),
     "ambient.min": (-75.0, 200.0, "temperature"),
     "ambient.max": (-75.0, 200.0, "temperature"),
     "thermal.resistance": (0.0, 10e3, "thermal_resistance"),
@@ -185,7 +185,7 @@ _ZERO_MEANS_UNSET = frozenset((
     "hold.band", "hold.off_time", "hold.max_frequency", "timer.max_pwm_frequency",
     "switch.rise_time", "switch.fall_time", "switch.power_rating", "freewheel.zener_voltage",
     "supply.capacitance", "supply.capacitor_voltage", "supply.source_resistance",
-    "supply.boost", "supply.boost_capacitance", "supply.boost_power",
+    "supply.boost", "supply.boost_capacitance", "supply.boost_power", "supply.boost_efficiency",
     "freewheel.resistance", "freewheel.clamp_voltage", "freewheel.diode_power_rating",
     "freewheel.zener_power_rating", "freewheel.resistor_power_rating",
     "freewheel.clamp_power_rating", "freewheel.bypass_power_rating",
@@ -287,11 +287,11 @@ class Supply:
     threshold (:mod:`coildrive.model.boost`), within ``boost_tolerance`` (fraction); from a
     capacitor of ``boost_capacitance`` (F, 0 = an ideal source) within
     ``boost_capacitance_tolerance`` (fraction), through ``boost_resistance`` (ohm: the boost
-    switch and the capacitor's ESR), recharged at ``boost_power`` (W, 0 = not given).
-    ``boost_draw`` (W) is what the boost converter draws from the main bus while it
-    recharges (-1 = not given: ``boost_power``, a lossless converter fed from the main bus;
-    0: fed from elsewhere): the drooping bus carries it after the peak
-    (:func:`coildrive.design.supply.handover_bus`); :attr:`converter_draw` resolves it.
+    switch and the capacitor's ESR), recharged at ``boost_power`` (W, 0 = not given);
+    ``boost_efficiency`` (fraction, 0 = not given) is the boost converter's: it draws its
+    output over it from the main supply (:attr:`converter_draw`): the drooping main bus
+    carries it after the peak (:func:`coildrive.design.supply.handover_bus`), a system's
+    shared rail in the peak and after (:mod:`coildrive.design.system`); both need it.
     """
 
     min: float
@@ -307,13 +307,17 @@ class Supply:
     boost_capacitance_tolerance: float = 0.0
     boost_resistance: float = 0.0
     boost_power: float = 0.0
-    boost_draw: float = -1.0
+    boost_efficiency: float = 0.0
 
     @property
     def converter_draw(self) -> float:
-        """W the boost converter draws from the main bus while it recharges: ``boost_draw``,
-        or ``boost_power`` when it is not given."""
-        return self.boost_power if self.boost_draw < 0 else self.boost_draw
+        """W the boost converter draws from the main supply while it recharges:
+        ``boost_power / boost_efficiency`` (0 without ``boost_power``; ``boost_power`` itself,
+        a lossless converter, where the efficiency is not given -- a drooping main supply
+        and a system file require it)."""
+        if not self.boost_power > 0:
+            return 0.0
+        return self.boost_power / self.boost_efficiency if self.boost_efficiency > 0 else self.boost_power
 
     @property
     def boosted(self) -> bool:
@@ -720,7 +724,7 @@ _LATER_FIELDS = (
     (("pull_in",), PullIn, ("current_margin", "settle_time", "compensate")),
     (("supply",), Supply, ("sink", "capacitance", "capacitor_voltage", "source_resistance", "boost",
                            "boost_tolerance", "boost_capacitance", "boost_capacitance_tolerance",
-                           "boost_resistance", "boost_power", "boost_draw")),
+                           "boost_resistance", "boost_power", "boost_efficiency")),
     (("board", "sense"), Sense, ("resistance_tolerance", "gain_tolerance")),
     (("board", "supply_sense"), SupplySense, ("divider_tolerance",)),
     (("switch",), Switch, ("rise_time", "fall_time", "power_rating", "power_derating", "topology")),
@@ -1450,12 +1454,12 @@ def _read_boost(s: "_Section") -> tuple:
     """The ``[supply]`` boost keys, in :class:`Supply`'s order (all 0 without ``boost``)."""
     boost = s.quantity("boost", "voltage", 0.0, nonnegative=True)
     keys = ("boost_tolerance", "boost_capacitance", "boost_capacitance_tolerance", "boost_resistance",
-            "boost_power", "boost_draw")
+            "boost_power", "boost_efficiency")
     if not boost > 0:
         for key in keys:
             if key in s.table:
                 raise s.fail(key, "given without supply.boost, expected the boost voltage too")
-        return (0.0,) * 6 + (-1.0,)
+        return (0.0,) * 7
     cap = s.quantity("boost_capacitance", "capacitance", 0.0, nonnegative=True)
     power = s.quantity("boost_power", "power", 0.0, nonnegative=True)
     if cap > 0 and not power > 0:
@@ -1464,7 +1468,7 @@ def _read_boost(s: "_Section") -> tuple:
     return (boost, s.fraction("boost_tolerance", 0.0), cap,
             s.fraction("boost_capacitance_tolerance", 0.0),
             s.quantity("boost_resistance", "resistance", 0.0, nonnegative=True), power,
-            s.quantity("boost_draw", "power", -1.0, nonnegative=True) if "boost_draw" in s.table else -1.0)
+            s.fraction("boost_efficiency", 0.0, below_one=False))
 
 
 def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, freewheel: Freewheel,
@@ -1486,6 +1490,10 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     if supply.boost * (1.0 - supply.boost_tolerance) <= supply.max:
         raise InputError(source, "supply.boost", f"{supply.boost:g} V less its tolerance is not above "
                          f"supply.max ({supply.max:g} V), expected a higher voltage than the main supply")
+    if supply.droops and supply.boost_power > 0 and not supply.boost_efficiency > 0:
+        raise InputError(source, "supply.boost_efficiency", "missing: on a drooping main supply the boost "
+                         "converter draws boost_power / its efficiency from the main bus, expected it "
+                         "(e.g. 0.85)")
     why = None
     if coil.flux_current and coil.eddy_resistance:
         key = "coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance"

@@ -113,3 +113,17 @@ def supply_corners(ch, drv):
     codes = d["peak_table"]["adc_codes"]
     for v in (drv.supply.min, codes[len(codes) // 2] * lsb - 1e-6, drv.supply.max):
         yield (v, *firmware_lookup(d, drv, v), readable(ch, v))
+
+
+def simulate_csv(system_file, folder, hold_time: float, supply: float = 28.0) -> np.ndarray:
+    """``simulate SYSTEM.toml`` at ``supply`` V, the coils at 0 degC, ``hold_time`` s of
+    hold (typer's CliRunner, the CSV into ``folder``): the CSV's rows (A, s, 0/1)."""
+    from typer.testing import CliRunner
+
+    from coildrive.cli import app
+
+    out = folder / "sim.csv"
+    r = CliRunner().invoke(app, ["simulate", str(system_file), "--supply", f"{supply:g}", "--coil-temp", "0",
+                                 "--hold-time", f"{hold_time:g}", "--csv", str(out)])
+    assert r.exit_code == 0, r.output
+    return np.loadtxt(out, delimiter=",", skiprows=1)

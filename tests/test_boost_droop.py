@@ -2,7 +2,7 @@
 ``source_resistance`` and ``capacitance``): the peak runs from the boost capacitor while
 the main supply's diode blocks, so the main bus sags only when the hold takes over at the
 hand-over current, and the boost converter, fed from the main bus, draws its recharge
-from it meanwhile (``supply.boost_draw``, default ``boost_power``). References:
+from it meanwhile (``supply.boost_power / boost_efficiency``). References:
 
 * ngspice (batch mode, ``ngspice -b``): the circuit of tests/test_boost_holds.py with the
   main supply a source behind ``R_s`` onto the bulk capacitor (``IC=``, ``tran ... uic``),
@@ -33,7 +33,8 @@ from test_boost import _variant
 from test_boost_holds import COIL_TEMP, CLAMP, CURRENT, SUPPLY, _elements, _netlist
 
 R_S, C_BUS = 0.05, 1e-3            # ohm, F: the main bus of the variants
-DROOP = ('max = "16 V"', f'max = "16 V"\nsource_resistance = "{R_S} ohm"\ncapacitance = "1 mF"')
+DROOP = ('max = "16 V"', f'max = "16 V"\nsource_resistance = "{R_S} ohm"\ncapacitance = "1 mF"\n'
+                         'boost_efficiency = 1')
 
 
 def _droop(tmp_path, name="droop", *more):
@@ -95,15 +96,17 @@ def test_hand_over_onto_the_drooping_bus_against_ngspice(tmp_path):
 def test_converter_current_hand_worked(tmp_path):
     """The converter's 5 W at the bus's floor with the coil at 1.2 A, 9 V behind 0.05 ohm:
     ``v_f^2 - (9 - 0.06) v_f + 0.05 x 5 = 0``, ``v_f = (8.94 + sqrt(8.94^2 - 1))/2 =
-    8.911948`` V, so at most 5 / 8.911948 = 0.561045 A; 0 with ``boost_draw = 0``."""
+    8.911948`` V, so at most 5 / 8.911948 = 0.561045 A; at half the efficiency twice the power."""
     from coildrive.config import load_drive
     from coildrive.design.supply import converter_current
 
     drive = load_drive(_droop(tmp_path))
     assert drive.supply.converter_draw == 5.0
     assert float(converter_current(drive, 9.0, 1.2)) == pytest.approx(0.561045, rel=1e-6)
-    none = load_drive(_droop(tmp_path, "fed-elsewhere", ('boost_power = "5 W"', 'boost_power = "5 W"\nboost_draw = 0')))
-    assert float(converter_current(none, 9.0, 1.2)) == 0.0
+    half = load_drive(_droop(tmp_path, "half", ("boost_efficiency = 1", "boost_efficiency = 0.5")))
+    assert half.supply.converter_draw == 10.0
+    # v_f = (8.94 + sqrt(8.94^2 - 4 x 0.05 x 10))/2 = 8.827207 V: 10 / 8.827207 = 1.132861 A
+    assert float(converter_current(half, 9.0, 1.2)) == pytest.approx(10 / ((8.94 + (8.94**2 - 2.0) ** 0.5) / 2), rel=1e-9)
 
 
 def test_design_takes_the_hand_over(tmp_path):
@@ -126,8 +129,8 @@ def test_design_takes_the_hand_over(tmp_path):
 
     def designed(name, *change):
         return supply_of(design(load_drive(_droop(tmp_path, name, *change))).to_dict())
-    _, s0, _ = designed("no-draw", ('boost_power = "5 W"', 'boost_power = "5 W"\nboost_draw = 0'))
-    assert s0["lowest_bus_v"] > s["lowest_bus_v"]          # the converter's draw deepens the droop
+    _, s0, _ = designed("lossy", ("boost_efficiency = 1", "boost_efficiency = 0.5"))
+    assert s0["lowest_bus_v"] < s["lowest_bus_v"]          # the converter's draw deepens the droop
     for name, change in (("current", CURRENT), ("clamp", CLAMP)):
         d, s, _ = designed(name, change)
         assert s["lowest_bus_method"].startswith("a floor")

@@ -145,18 +145,4 @@ def test_droop_bound_never_above_ngspice(tmp_path, system):
     assert v_s - rail["lowest_bus_together_v"] <= 1.3 * (v_s - got["vlow"])
 
 
-def test_eddy_with_a_current_mode_hold_is_refused(tmp_path):
-    """An eddy term under a current-mode hold (its bound is not built) is refused in one
-    line naming the key (exit 2)."""
-    from test_system import _current_mode_system
-
-    path = _current_mode_system(tmp_path / "m")
-    purge = path.parent / "purge-valve-24v.toml"
-    text = purge.read_text().replace('inductance = "70 mH"\n', 'inductance = "70 mH"\n' + EDDY)
-    for key in ("split_decay", "bypass_resistance", "bypass_lead"):     # (refused with an eddy term)
-        text = "\n".join(x for x in text.splitlines() if not x.startswith(key))
-    purge.write_text(text + "\n")
-    r = CliRunner().invoke(app, ["design", str(path), "--json"])
-    assert r.exit_code == 2, r.output
-    assert len(r.stderr.strip().splitlines()) == 1
-    assert "coil.eddy_resistance:" in r.stderr and "not modelled in a system" in r.stderr, r.stderr
+# An eddy term under a current-mode hold: tests/test_system_eddy_current.py

@@ -90,8 +90,9 @@ def emulate_command(
     from ..system_file import is_system_file
     if is_system_file(drive):
         from .system_cmd import channel_drive
-        d = design(channel_drive(drive, board, channel))
-        if d.drive.shared_timer is not None:
+        drv = channel_drive(drive, board, channel)
+        d = None if drv.latch is not None else design(drv)   # a latching channel: its pulses
+        if d is not None and d.drive.shared_timer is not None:
             status(f"channel {channel}: hold PWM on the board's shared timer, prescaler "
                    f"{d.timer.prescaler}, period {d.timer.period_ticks} counts, "
                    f"{d.timer.frequency_hz:.6g} Hz (a hold-frequency command gets it back, unchanged)")
@@ -105,7 +106,8 @@ def emulate_command(
                          "firmware of a PWM hold: leave it out with --firmware or a latching coil")
     try:
         if d is None:   # a latching coil: its set and reset pulses
-            device = _latch_device(drive, drv, options, firmware, fault)
+            device = _latch_device(Path(drv.source) if channel is not None else drive, drv, options, firmware,
+                                   fault)
         elif firmware is not None:
             from ..bench.firmware_device import FirmwareDevice
             from ..codegen.host_build import build_firmware

@@ -1,5 +1,6 @@
 """One header for a board with several channels: each channel's header under its own
-prefix (the channel's name in capitals), after a block of what the channels share --
+prefix (the channel's name in capitals; a latching coil's pulse constants,
+:mod:`coildrive.codegen.latch_header`), after a block of what the channels share --
 the shared timers, the peaks' start offsets in scheduler ticks -- with preprocessor
 checks that every channel on a shared timer has its prescaler and period.
 :func:`generate_system_header` is pure: a SystemResult in, text out."""
@@ -8,6 +9,7 @@ from __future__ import annotations
 
 from ..design.result import SystemResult
 from .header import Constant, check_prefix, generate_header
+from .latch_header import generate_latch_header
 
 
 def _define(c: Constant) -> str:
@@ -28,8 +30,10 @@ def generate_system_header(r: SystemResult, prefix: str = "BOARD") -> str:
                        f"ticks between the channels' peak starts ({r.stagger_ticks * tick * 1e3:.4g} ms)"
                        + (f": rail within {r.current_limit_a:.4g} A" if r.current_limit_a else ""))]
     for c in r.channels:
+        what = ("fire {}'s set or reset pulse" if getattr(c.design, "latch", None) is not None
+                else "start {}'s peak").format(c.name)
         consts.append(Constant(f"{c.name.upper()}_START_OFFSET_TICKS", c.offset_ticks,
-                               f"start {c.name}'s peak this many ticks after the first channel's"
+                               f"{what} this many ticks after the first channel's"
                                + (" (fixed in the system file)" if c.offset_fixed else "")))
     checks = []
     for n, tm in enumerate(r.timers, start=1):
@@ -53,7 +57,10 @@ def generate_system_header(r: SystemResult, prefix: str = "BOARD") -> str:
     for c in r.channels:
         lines.append(f"/* ---- channel {c.name} (board channel {c.number}) "
                      f"---------------------------------------- */")
-        lines.append(generate_header(c.design, c.name.upper()).rstrip("\n"))
+        if getattr(c.design, "latch", None) is not None:    # a latching coil: its pulses' constants
+            lines.append(generate_latch_header(c.design, c.name.upper()).rstrip("\n"))
+        else:
+            lines.append(generate_header(c.design, c.name.upper()).rstrip("\n"))
         lines.append("")
     for cond, message in checks:
         lines += [f"#if {cond}", f"#error \"{message}\"", "#endif"]

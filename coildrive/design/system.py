@@ -21,10 +21,11 @@
   ``[supply]`` source resistance and bulk capacitance;
 * **the heat** in the shared freewheel parts and in the board.
 
-A channel is a linear coil, with a moving armature (:mod:`coildrive.model.armature_bound`)
-or an eddy term, or a flux-linkage curve (:mod:`coildrive.model.flux_bound`), on one
-switch or a full bridge; a latching coil and a boosted peak are refused in one line
-(:func:`_refuse`). A rail with a curve, an eddy term or a bridge on it takes its droop
+A channel is a linear coil, with a moving armature (:mod:`coildrive.model.armature_bound`),
+an eddy term or both, or a flux-linkage curve (:mod:`coildrive.model.flux_bound`), on one
+switch or a full bridge, or a latching coil (its pulses: :func:`_latch_bound_params`), or a
+boosted peak (its converter's draw: :func:`_boost_keys`); what is not is refused in one
+line (:func:`_refuse`). A rail with a curve, an eddy term or a bridge on it takes its droop
 from the rail-current bounds (:func:`bus_from_bound`).
 """
 
@@ -37,6 +38,7 @@ import numpy as np
 
 from ..errors import InputError
 from ..model import armature_bound, circuit, eddy, flux, flux_bound, magnet, pwm, shared_bus
+from ..model.current_mode import sensed_threshold
 from ..system_file import System, with_timer
 from . import envelope
 from .envelope import table_index
@@ -90,19 +92,33 @@ TAIL_SPLITS = 6
 def _branch_rise(t, b: dict):
     """The bound (A) of one branch's peak ``t`` s after switch-on: the stiff-bus rise
     ``V/R (1 - exp(-t R/L))``, or with a moving armature
-    :func:`~coildrive.model.armature_bound.peak_rise`."""
+    :func:`~coildrive.model.armature_bound.peak_rise`, or a boosted peak's
+    (:func:`_boost_rise`)."""
+    if "boost_v" in b:
+        return _boost_rise(t, b)
     if "rise_time_s" in b:
         return flux_bound.table_current(t, b["rise_time_s"], b["rise_current_a"])
     if "eddy_resistance_ohm" in b:
-        # i = (V + R_e i_m)/(R + R_e), i_m = V/R (1 - exp(-t R_th/L)), R_th = R R_e/(R + R_e)
+        # the terminal current i = (V + R_e i_m)/(R + R_e) on the magnetising current's bound
         v, r, r_e = b["supply_v"], b["resistance_ohm"], b["eddy_resistance_ohm"]
-        i_m = v / r * -np.expm1(-np.clip(t, 0.0, None) * r * r_e / ((r + r_e) * b["inductance_h"]))
-        return np.where(np.asarray(t) < 0, 0.0, (v + r_e * i_m) / (r + r_e))
+        return np.where(np.asarray(t) < 0, 0.0, (v + r_e * _magnetising_rise(t, b)) / (r + r_e))
     if "closing_s" in b:
         return armature_bound.peak_rise(t, b["supply_v"], b["resistance_ohm"], b["inductance_h"],
                                         b["closed_inductance_h"], b["flux_ratio"], b["closing_s"])
     return b["supply_v"] / b["resistance_ohm"] * -np.expm1(
         -np.clip(t, 0.0, None) * b["resistance_ohm"] / b["inductance_h"])
+
+
+def _magnetising_rise(t, b: dict):
+    """The bound (A) of an eddy branch's magnetising current ``t`` s after switch-on: it
+    sees the Thevenin pair ``V_th = V R_e/(R + R_e)``, ``R_th = R R_e/(R + R_e)``, so ``V/R
+    (1 - exp(-t R_th/L))``, or with a moving armature
+    :func:`~coildrive.model.armature_bound.peak_rise` on that pair."""
+    v, r, r_e = b["supply_v"], b["resistance_ohm"], b["eddy_resistance_ohm"]
+    if "closing_s" in b:
+        return armature_bound.peak_rise(t, v * r_e / (r + r_e), r * r_e / (r + r_e), b["inductance_h"],
+                                        b["closed_inductance_h"], b["flux_ratio"], b["closing_s"])
+    return v / r * -np.expm1(-np.clip(t, 0.0, None) * r * r_e / ((r + r_e) * b["inductance_h"]))
 
 
 def _branch_parts(t, b: dict):
@@ -115,6 +131,8 @@ def _branch_parts(t, b: dict):
         return rise, flux_bound.table_current(left, b["tail_flux_wb"], b["tail_current_a"])
     tail = b["hold_top_a"] + np.max([e * np.exp(-age * b["slow_resistance_ohm"] / l)
                                      for e, l in zip(b["excess_a"], b["tail_inductance_h"])], axis=0)
+    if "converter_until_s" in b:      # a boosted peak's converter, recharging its capacitor
+        tail = tail + np.where(t < b["converter_until_s"], b["converter_a"], 0.0)
     return rise, tail
 
 
@@ -188,7 +206,10 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
     over the orbit's bottom is taken against the lowest bottom in the range (its lowest
     supply and readable duty, the hottest coil of the design's corners). With a moving
     armature the peak's rise is :func:`_armature_rise`'s (the open coil's while the armature
-    is proved to only close) and the tail is the seated coil's, one part."""
+    is proved to only close) and the tail is the seated coil's, one part. A latching
+    coil's: :func:`_latch_bound_params`."""
+    if is_latch(d):
+        return _latch_bound_params(d)
     drive = d.drive
     b = drive.board
     rate_tick = b.tick.rate
@@ -263,7 +284,26 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
         branch = {"supply_v": hi, "supply_low_v": lo, "resistance_ohm": r_on, "inductance_h": l_min,
                   "peak_s": tp}
         peak_end = {}             # the peak's end current where the excess is not measured from it
-        if drive.armature is not None:
+        if r_eddy is not None:
+            # the tail on the magnetising current, decaying at the slowest Thevenin rate
+            r_low = np.minimum(top_cold.r_on, top_cold.r_off)
+            r_slow_eddy = float(np.min(r_eddy * r_low / (r_low + r_eddy)))
+        if drive.supply.boosted:
+            branch.update(_boost_keys(d, hi, r_on, l_min, hold_top, bottom, reading_droop_v))
+            i_pe = np.array([d.boost.end_current_max_a])
+            ends = np.array([l_min, l_max])
+            peak_end["a"] = float(_branch_rise(tp, branch))
+        elif drive.armature is not None and r_eddy is not None:
+            # the armature's bound on the magnetising current, which sees the Thevenin pair
+            # (the closing window and the earliest start on it); the rail the terminal current
+            # on it; the tail the eddy term's (below) on the seated coil: one part
+            branch.update(_armature_rise(drive.armature, hi * r_eddy / (r_on + r_eddy),
+                                         r_on * r_eddy / (r_on + r_eddy), l_min, l_max, tp))
+            branch["eddy_resistance_ohm"] = r_eddy
+            r_slow = r_slow_eddy
+            peak_end["a"] = float(_branch_rise(tp, branch))
+            i_pe, ends = np.array([float(_magnetising_rise(tp, branch))]), np.array([l_min, l_max])
+        elif drive.armature is not None:
             branch.update(_armature_rise(drive.armature, hi, r_on, l_min, l_max, tp))
             # the peak's end current is bounded at the open gap, its decay at the seated
             # coil's highest inductance: one part
@@ -271,19 +311,17 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
         elif r_eddy is not None and curve is not None:
             branch.update(_eddy_curve_branch(flux.FluxCoil(curve, float(scale.min())), hi, r_on, r_eddy, tp,
                                              float(np.max(orbit.i_max)), bottom))
-            r_th = r_eddy * np.minimum(top_cold.r_on, top_cold.r_off) / (np.minimum(top_cold.r_on, top_cold.r_off) + r_eddy)
-            r_slow = float(np.min(r_th))
+            r_slow = r_slow_eddy
             hold_top, bottom = branch.pop("hold_top_a"), 0.0
             i_pe = np.array([branch.pop("excess_a")])
             ends = np.array([l_min, branch.pop("l_max_h") * float(scale.max())])
             peak_end["a"] = float(branch["rise_current_a"][-1])
         elif r_eddy is not None:
             # the terminal current's step and rise (model/eddy.py's Thevenin pair); the tail
-            # on the magnetising current, decaying at the slowest Thevenin rate: one part
+            # on the magnetising current: one part
             branch["eddy_resistance_ohm"] = r_eddy
-            r_th = r_eddy * np.minimum(top_cold.r_on, top_cold.r_off) / (np.minimum(top_cold.r_on, top_cold.r_off) + r_eddy)
-            r_slow = float(np.min(r_th))
-            i_pe = np.array([hi / r_on * -np.expm1(-tp * r_on * r_eddy / ((r_on + r_eddy) * l_min))])
+            r_slow = r_slow_eddy
+            i_pe = np.array([float(_magnetising_rise(tp, branch))])
             ends = np.array([l_min, l_max])
             peak_end["a"] = float(_branch_rise(tp, branch))
         elif curve is not None:
@@ -310,6 +348,141 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
                          "tail_inductance_h": [float(x) for x in ends[1:]],
                          "slow_resistance_ohm": r_slow, "pwm_period_s": settle_s})
     return {"reading_droop_v": reading_droop_v, **_summary(branches)}
+
+
+def is_latch(d) -> bool:
+    """True for a latching coil's design (its set and reset pulses, no hold)."""
+    return getattr(d, "latch", None) is not None
+
+
+def _latch_bound_params(d) -> dict:
+    """The branches of a latching coil's rail-current bound (:func:`draw_bound`): one per
+    pulse, the firmware firing either at the channel's start (docs/design-method.md, "A
+    latching coil"). The pulses are not looked up against the supply: each branch spans
+    ``[supply] min..max`` and takes its top. Over the pulse's ticks the rise as a peak's --
+    the winding's coldest loop, lowest resistance and inductance -- and with a moving
+    armature the set pulse's :func:`_armature_rise` (from the open stop), the reset pulse
+    of the same coil the any-motion bound from its start (``closing_s`` 0: it starts seated
+    and the reset moves it open). After the pulse no hold (``hold_top_a`` 0, settling at
+    once): the rail carries none of the decaying current through a freewheel across the
+    coil, a bridge's fast decay returns it (negative: taken as 0); only through a clamp
+    across the switch does it draw the coil's current, which falls at least as
+    ``exp(-R_off t/L_max)`` through the release path from the pulse's end (with the
+    any-motion bound, the flux linkage does, the current at most its over the open
+    inductance): the excess the pulse's end bound there, else 0."""
+    from .latch import winding_drive
+
+    drive = d.drive
+    v = drive.supply.max
+    branches = []
+    for p in d.latch.pulses:
+        wd = winding_drive(drive, p.name == "reset")
+        tol = envelope.tolerances(wd)
+        factors = {"diode_factor": tol.diode_factor, "fast_factor": tol.fast_factor, "sense_factor": tol.sense_factor}
+        lp = circuit.loop(wd, v, drive.ambient.min, tol.r_factor, tol.l_factor, **factors)
+        rel = circuit.loop(wd, v, drive.ambient.min, tol.r_factor, tol.l_factor, path="release", **factors)
+        r_on = float(np.min(lp.r_on))
+        l_min, l_max = float(np.min(lp.inductance)), float(np.max(lp.inductance))
+        tp = p.ticks / drive.board.tick.rate
+        branch = {"pulse": p.name, "supply_v": v, "supply_low_v": drive.supply.min, "resistance_ohm": r_on,
+                  "inductance_h": l_min, "peak_s": tp}
+        if wd.armature is not None:
+            branch.update(_armature_rise(wd.armature, v, r_on, l_min, l_max, tp))
+            if p.name == "reset":
+                branch["closing_s"] = 0.0
+        end = float(_branch_rise(tp, branch))
+        draws = wd.freewheel.type == "clamp" and not circuit.full_bridge(wd)
+        branches.append({**branch, "peak_end_a": end, "hold_top_a": 0.0, "excess_a": [end if draws else 0.0],
+                         "tail_inductance_h": [l_max], "slow_resistance_ohm": float(np.min(rel.r_off)),
+                         "pwm_period_s": 0.0})
+    return {"reading_droop_v": 0.0, **_summary(branches)}
+
+
+def _lowest_resistance(d) -> float:
+    """A channel's lowest loop resistance (ohm): its design's corners', or a latching coil's
+    pulses' (its bound's branches)."""
+    if is_latch(d):
+        return min(b["resistance_ohm"] for b in _latch_bound_params(d)["branches"])
+    return min(c.resistance_ohm for c in d.corners)
+
+
+def _hold_average(d) -> float:
+    """A channel's hold current averaged over its PWM at its highest mean (A; a latching
+    coil has none)."""
+    return 0.0 if is_latch(d) else d.hold.max_mean_current_a * d.hold.duty
+
+
+def _latch_heat(name: str, d) -> dict:
+    """A latching coil's heat on the board (W): its pulses' freewheel and switch energies
+    averaged over its on/off cycle (``[duty]``: a set and a reset pulse each period), else
+    the larger pulse's every shortest interval (the most the design allows)."""
+    by = {p.name: p for p in d.latch.pulses}
+    cyc = d.latch.cycle
+    if cyc is not None:
+        fw = (by["set"].freewheel_j + by["reset"].freewheel_j) / cyc.period_s
+        sw = (by["set"].switch_sense_j + by["reset"].switch_sense_j) / cyc.period_s
+        basis = "on/off cycle average"
+    else:
+        interval = d.latch.interval_s if math.isfinite(d.latch.interval_s) and d.latch.interval_s > 0 else math.inf
+        fw = max(p.freewheel_j for p in by.values()) / interval
+        sw = max(p.switch_sense_j for p in by.values()) / interval
+        basis = "latching: a pulse every shortest interval"
+    return {"channel": name, "freewheel_w": fw, "switch_w": sw, "freewheel_basis": basis}
+
+
+def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bottom: float,
+                reading_droop_v: float) -> dict:
+    """The keys a boosted peak's branch adds (docs/design-method.md, "A boosted peak"): the
+    coil's current from switch-on is at most the rise ``V_b/R (1 - exp(-t R/L))`` from the
+    boost at its highest through the coldest on-loop (the capacitor's voltage only falls,
+    the boost path's resistance only slows it, and after the threshold the main supply
+    drives less), and never above ``coil_top_a``. Under a voltage-mode hold from the main
+    supply at ``v_hi`` V the PWM's period map is increasing and contracts onto its orbit,
+    so from the trip at ``I <= I_end`` (the highest end current) every period starts at
+    most at ``max(I, B)`` (``B`` the orbit's start) and rises within two periods (the first
+    may start late) by at most ``(V/R - c)(1 - exp(-2 T R/L))``: ``coil_top_a`` is the
+    larger of that from ``I_end`` and the hold's top; under a current-mode hold the tail's
+    value at the end, the hold's top plus ``I_end`` less the bottom. The boost
+    converter draws its output over ``supply.boost_efficiency`` from the rail at its lowest
+    (``[supply] min`` less the reading's droop, ``reading_droop_v``): with a capacitor a
+    constant ``boost_power`` from switch-on until the energy one peak takes is back
+    (``converter_until_s``: the time-out plus the recharge time), with an ideal boost the
+    coil's current times ``V_b`` while the peak runs from it."""
+    drive = d.drive
+    s, bst = drive.supply, d.boost
+    v_low = max(s.min - reading_droop_v, 1e-3)
+    i_end = bst.end_current_max_a
+    if d.hold.mode == "current":
+        coil_top = hold_top + max(0.0, i_end - bottom)
+    else:
+        a = v_hi / r_on
+        coil_top = max(hold_top, i_end + max(0.0, a - i_end) * -math.expm1(-2.0 / d.hold.frequency_hz * r_on / l_min))
+    out = {"boost_v": bst.boost_max_v, "resistance_ohm": r_on, "inductance_h": l_min, "coil_top_a": coil_top,
+           "boost_efficiency": s.boost_efficiency}
+    if bst.capacitance_f > 0:
+        converter = bst.power_w / (s.boost_efficiency * v_low)
+        out.update({"converter_a": converter, "converter_until_s": d.pull_in.peak_ticks / drive.board.tick.rate
+                    + bst.recharge_time_s, "top_a": converter + coil_top})
+    else:
+        out.update({"feed_ratio": bst.boost_max_v / (s.boost_efficiency * v_low),
+                    "feed_end_a": bst.end_current_max_a})
+        out["top_a"] = max(out["feed_ratio"] * bst.end_current_max_a, coil_top)
+    return out
+
+
+def _boost_rise(t, b: dict):
+    """A boosted branch's peak bound (A) ``t`` s after switch-on (:func:`_boost_keys`): with
+    a capacitor, the converter's draw plus the coil's current (counted as the rail's even
+    while the capacitor feeds it); with an ideal boost, the larger of the converter feeding
+    the coil and the coil's own current. Non-decreasing in ``t``."""
+    t = np.asarray(t, float)
+    coil = np.minimum(b["boost_v"] / b["resistance_ohm"] * -np.expm1(-np.clip(t, 0.0, None) * b["resistance_ohm"]
+                                                                       / b["inductance_h"]), b["coil_top_a"])
+    if "converter_a" in b:
+        got = b["converter_a"] + coil
+    else:
+        got = np.maximum(b["feed_ratio"] * np.minimum(coil, b["feed_end_a"]), coil)
+    return np.where(t < 0, 0.0, got)
 
 
 def _armature_rise(arm, supply: float, r_on: float, lc_low: float, lc_high: float, peak_s: float) -> dict:
@@ -383,7 +556,9 @@ def _current_mode_hold(d):
     fixed off-time, the delay plus the off time (each further cycle the same again, the
     excess over the threshold multiplied by ``exp(-(delay R_on + t_off R_off)/L)``). The
     bottom of :func:`channel_bound_params`'s excess is therefore ``I_lo'``
-    (docs/design-method.md, "Several channels")."""
+    (docs/design-method.md, "Several channels"). A fixed off-time may switch on with the
+    current still above the threshold and then runs the delay alone: the top is at most
+    the larger of the above and :func:`_delay_orbit_top`."""
     th = d.hold.thresholds
     low, high = envelope.reading_factors(d.drive)
     hyst = th.control == "hysteretic"
@@ -392,6 +567,8 @@ def _current_mode_hold(d):
     def hold(cold):
         a_top = cold.v_on / cold.r_on
         i_hi = th.upper_a / low
+        if isinstance(cold.inductance, eddy.EddyCoil):
+            return _eddy_current_hold(th, cold, low, settle)
         if isinstance(cold.inductance, flux.FluxCoil):
             # a saturating coil: over the delay the flux rises by at most v_on x delay, so
             # the top is at most psi^-1(psi(I_hi') + v_on delay / s) at the lowest scale s,
@@ -402,21 +579,68 @@ def _current_mode_hold(d):
             top = np.minimum(a_top, reach)
         else:
             top = np.minimum(a_top, a_top - (a_top - i_hi) * np.exp(-th.delay_s * cold.r_on / cold.inductance))
+        if not hyst:
+            top = np.maximum(top, _delay_orbit_top(th, cold))
         return float(np.max(top)), float(th.upper_a / high), settle
     return hold
 
 
+def _delay_orbit_top(th, cold) -> np.ndarray:
+    """The top (A; with an eddy term the magnetising current's) of the PWM orbit of a fixed
+    off-time hold that switches on above its threshold every time: ``delay`` on, ``t_off``
+    off, at the cold loops ``cold``. One such cycle maps a start onto the next
+    increasingly and contracts (every segment's flow does: ``d(psi_a - psi_b)/dt = -R (i_a
+    - i_b)``), so with the tops of the cycles that cross the threshold at most ``T``, every
+    top after one at most ``max(T, x*)`` stays there (``x*`` this orbit's top), and a top
+    above it comes down by the contraction (docs/design-method.md, "Several channels")."""
+    cycle = th.delay_s + th.off_time_s
+    orbit = pwm.pwm_steady_state(th.delay_s / cycle, 1.0 / cycle, cold.v_on, cold.r_on, cold.r_off,
+                                 cold.v_off, cold.inductance, mixed=cold.mixed)
+    return orbit.i_max
+
+
+def _eddy_current_hold(th, cold, low: float, settle: float) -> tuple[float, float, float]:
+    """:func:`_current_mode_hold`'s ``(hold top A, bottom A, settle s)`` with an eddy term
+    on a linear coil, from the cold loops ``cold`` (docs/design-method.md, "An
+    eddy-current term"). The comparator reads the terminal current, the state is the
+    magnetising current ``i_m``, which rises toward ``A = V/R_on`` on the Thevenin pair.
+    The switch trips off at a magnetising current of at most ``J``: the upper (peak)
+    threshold read low, ``((R_on + R_e) I_hi' - V) / R_e``; hysteretic, also the lower
+    threshold read low as it switches on (``((R_off + R_e) I_lo' + V_off) / R_e``: it
+    may step above the upper at once). So an on-time ends at most at ``max(J, A - (A - J)
+    exp(-delay R_th/L))``; a fixed off-time may also switch on above ``J`` and run the
+    delay alone, a PWM of ``delay`` on and ``t_off`` off whose orbit's top is the other
+    bound (the map of one such cycle is a contraction: the tops stay under the larger).
+    The hold's top is the terminal current there (off it is below ``i_m``); the bottom
+    of the tail's excess is the lowest ``J`` (magnetising)."""
+    e = cold.inductance
+    r_e, l_m = e.resistance, e.magnetising
+    a_top = cold.v_on / cold.r_on
+    j = sensed_threshold(th.upper_a / low, cold.v_on, cold.r_on, r_e)
+    if th.control == "hysteretic":
+        j = np.maximum(j, sensed_threshold(th.lower_a / low, -cold.v_off, cold.r_off, r_e))
+    r_th = cold.r_on * r_e / (cold.r_on + r_e)
+    top = np.maximum(j, a_top - (a_top - j) * np.exp(-th.delay_s * r_th / l_m))
+    if th.control != "hysteretic":
+        top = np.maximum(top, _delay_orbit_top(th, cold))
+    terminal = np.maximum(top, (cold.v_on + r_e * top) / (cold.r_on + r_e))
+    return float(np.max(terminal)), float(np.min(j)), settle
+
+
 def _summary(branches: list[dict]) -> dict:
     """``branches`` and what :func:`stagger_bound` reads of them: the longest peak, the
-    PWM period, the highest hold top, the largest excess, the highest hold top plus excess
-    and the slowest decay rate (1/s)."""
+    PWM period, the highest hold top, the largest excess, the highest hold top plus excess,
+    the slowest decay rate (1/s) and ``busy_s``, from switch-on to the end of the first
+    PWM period after the longest peak or of a boost converter's recharge, the later."""
     return {"branches": branches,
             "peak_s": max(x["peak_s"] for x in branches),
             "pwm_period_s": max(x["pwm_period_s"] for x in branches),
             "hold_top_a": max(x["hold_top_a"] for x in branches),
             "excess_a": max(x["excess_a"][0] for x in branches),
             "top_a": max(x.get("top_a", x["hold_top_a"] + x["excess_a"][0]) for x in branches),
-            "rate_per_s": min(x["slow_resistance_ohm"] / x["tail_inductance_h"][-1] for x in branches)}
+            "rate_per_s": min(x["slow_resistance_ohm"] / x["tail_inductance_h"][-1] for x in branches),
+            "busy_s": max([max(x["peak_s"] for x in branches) + max(x["pwm_period_s"] for x in branches)]
+                          + [x.get("converter_until_s", 0.0) for x in branches])}
 
 
 def supply_cells(params: list[dict]) -> list[tuple[float, float, list[list[int]]]]:
@@ -473,7 +697,7 @@ def _piece_rows(params: list[dict], offsets: np.ndarray):
     marks = [offsets]
     for o, p in zip(offsets, params):
         for b in p["branches"]:
-            marks += [[o + b["peak_s"], o + b["peak_s"] + b["pwm_period_s"]]]
+            marks += [[o + b["peak_s"], o + b["peak_s"] + b["pwm_period_s"], o + b.get("converter_until_s", 0.0)]]
     moments = np.unique(np.concatenate(marks))
     moments = np.append(moments, moments[-1] + PIECE_S)
     count = np.maximum(np.ceil(np.diff(moments) / PIECE_S).astype(int), 1)
@@ -545,8 +769,8 @@ def _stagger_bound_cell(params: list[dict], positions: list[int], fixed: list[fl
     still = [k for k in range(n) if k not in moving]
     start = [0.0 if f is None else f for f in fixed]
     top_still = total_bound([params[k] for k in still], [start[k] for k in still])[0] if still else 0.0
-    reach = max([start[k] + params[k]["peak_s"] + params[k]["pwm_period_s"] for k in still] + [0.0])
-    wait = max([reach] + [p["peak_s"] + p["pwm_period_s"] for p in params])
+    reach = max([start[k] + params[k]["busy_s"] for k in still] + [0.0])
+    wait = max([reach] + [p["busy_s"] for p in params])
     holds = sum(params[k]["hold_top_a"] for k in still)
     l_inf, worst = top_still, "the channels that start at fixed times, together"
     for k in moving:
@@ -592,14 +816,15 @@ def system_drives(system: System) -> list:
     current-mode hold switches on its thresholds, not on the timer; its fixed-duty fallback
     (what the firmware starts the hold with or falls back to, :mod:`.hold_current`) runs on
     the timer's period at ``hold.frequency`` and takes part as a voltage-mode hold does. A
-    fixed off-time is the timer's own period, so it cannot share one."""
+    fixed off-time is the timer's own period, so it cannot share one. A latching coil has
+    no hold PWM: it takes no part in a shared timer."""
     board_ch = system.channels[0].drive.board.channels
     timer = system.channels[0].drive.board.timer
     channels = list(system.channels)
     seen: set[tuple[int, ...]] = set()
     for ch in system.channels:
         group = board_ch.group("timers", ch.number)
-        members = [c for c in channels if c.number in group]
+        members = [c for c in channels if c.number in group and c.drive.latch is None]
         if group in seen or len(members) < 2:
             continue
         seen.add(group)
@@ -623,6 +848,7 @@ def system_drives(system: System) -> list:
 def design_system(system: System) -> SystemResult:
     """Design every channel of ``system`` together (module docstring)."""
     from . import design
+    from .latch import design_latch
 
     board_ch = system.channels[0].drive.board.channels
     timer = system.channels[0].drive.board.timer
@@ -635,7 +861,7 @@ def design_system(system: System) -> SystemResult:
     seen: set[tuple[int, ...]] = set()
     for ch in channels:
         group = board_ch.group("timers", ch.number)
-        members = [c for c in channels if c.number in group]
+        members = [c for c in channels if c.number in group and c.drive.latch is None]
         if group in seen or len(members) < 2:
             continue
         seen.add(group)
@@ -643,13 +869,19 @@ def design_system(system: System) -> SystemResult:
         timers.append({"channels": [c.name for c in members], "board_channels": list(group),
                        "prescaler": p, "period_ticks": n, "frequency_hz": timer.clock / (p * n),
                        "compare_ticks": {}})
-    designs = [design(c.drive) for c in channels]
+    designs = [design_latch(c.drive) if c.drive.latch is not None else design(c.drive) for c in channels]
     for t in timers:
         for c, d in zip(channels, designs):
             if c.name in t["channels"]:
                 t["compare_ticks"][c.name] = d.timer.compare_ticks
     for c, d in zip(channels, designs):
-        if d.pull_in.peak_ticks is None:
+        if is_latch(d):
+            for p in d.latch.pulses:
+                if p.ticks is None:
+                    raise InputError(c.drive.source, "reset.current" if p.name == "reset" else "pull_in.current",
+                                     f"channel {c.name!r}: {p.not_reached}, so its {p.name} pulse has no length "
+                                     "to stagger")
+        elif d.pull_in.peak_ticks is None:
             raise InputError(c.drive.source, "pull_in.current",
                              f"channel {c.name!r}: {d.pull_in.not_reached}, so it has no peak to stagger")
     tick = 1.0 / channels[0].drive.board.tick.rate
@@ -696,8 +928,7 @@ def design_system(system: System) -> SystemResult:
                 "only per channel against its drive file's [supply] sink and capacitance, not for several "
                 "releasing together -- keep their releases apart or let the supply sink the current, and "
                 "check the bus capacitor's rating", severity="warning"))
-    hold_avg = {name: sum(designs[k].hold.max_mean_current_a * designs[k].hold.duty for k in ks)
-                for name, ks in rails.items()}
+    hold_avg = {name: sum(_hold_average(designs[k]) for k in ks) for name, ks in rails.items()}
     droop = _droop(system, channels, designs, rails, offsets, params)
     heat = _heat(board_ch, channels, designs)
     out = [SystemChannel(c.name, c.number, c.drive.source, offset_ticks[k], offsets[k],
@@ -732,8 +963,7 @@ def _consistent(designs, ks: list[int], offsets, r_s: float) -> tuple[tuple[floa
         got = bound(delta)
         if r_s * got[0] <= delta:
             return got, delta
-    delta = r_s * sum(designs[k].drive.supply.max / min(c.resistance_ohm for c in designs[k].corners)
-                      for k in ks)
+    delta = r_s * sum(designs[k].drive.supply.max / _lowest_resistance(designs[k]) for k in ks)
     return bound(delta), delta
 
 
@@ -773,36 +1003,42 @@ def rail_curves(result: SystemResult, points: int = 6000) -> list[dict]:
 
 
 def _refuse(system: System, ch) -> None:
-    """What the rail's current bound is made for: a linear coil (with a moving armature or
-    an eddy term, not both) or a flux-linkage curve (no armature; voltage-mode with or
-    without an eddy term, or a hysteretic current-mode hold), a moving armature under a
-    voltage-mode hold only, on one switch
-    or a full bridge, a voltage-mode (fixed, supply-table or closed-loop) or current-mode hold and one
-    switch (a full bridge: a fixed or supply-table hold). Anything else is refused in one line."""
+    """What the rail's current bound is made for: a linear coil (with a moving armature,
+    an eddy term or both) or a flux-linkage curve (no armature), on one switch or a full
+    bridge, under a voltage-mode (fixed, supply-table or closed-loop) hold or a
+    current-mode one (with an eddy term, on a linear coil without an armature; no moving
+    armature; not on a full bridge), or a latching coil, or a boosted peak. Anything else
+    is refused in one line: a curve with a moving armature (the closing armature's current
+    is not proved to stay under the open curve's rise, docs/design-method.md, "A
+    flux-linkage curve"), a current-mode hold with a moving armature, an eddy term under a
+    current-mode hold on a curve, a full bridge's current-mode or closed-loop hold, a
+    boosted peak with an eddy term, and a boosted peak without
+    ``supply.boost_efficiency`` (its converter's draw)."""
     d = ch.drive
     why = None
     if d.coil.flux_current and d.armature is not None:
         key, why = "armature", "a moving armature with a flux-linkage curve"
-    elif d.coil.flux_current and d.hold.mode == "current" and d.hold.control != "hysteretic":
-        key, why = "hold.control", "a fixed off-time current-mode hold with a flux-linkage curve"
-    elif d.hold.mode == "latch":
-        key, why = "hold.mode", "a latching coil"
     elif d.armature is not None and d.hold.mode == "current":
         key, why = "hold.mode", "a current-mode hold with an [armature]"
-    elif d.coil.eddy_resistance and (d.armature is not None or d.hold.mode == "current"):
-        key, why = "coil.eddy_resistance", "an eddy-current term with an [armature] or a current-mode hold"
-    elif d.supply.boosted:
-        key, why = "supply.boost", "a boosted peak"
+    elif d.coil.eddy_resistance and d.hold.mode == "current" and d.coil.flux_current:
+        key, why = ("coil.eddy_resistance",
+                    "an eddy-current term with a current-mode hold on a flux-linkage curve")
     elif d.switch.topology == "full_bridge" and d.hold.regulation in ("current", "closed_loop"):
         key = "hold.mode" if d.hold.regulation == "current" else "hold.regulation"
         why = f"a full bridge's {'current-mode' if d.hold.regulation == 'current' else 'closed-loop'} hold"
+    elif d.supply.boosted and d.coil.eddy_resistance:
+        key, why = "supply.boost", "a boosted peak with an eddy-current term"
+    elif d.supply.boosted and not d.supply.boost_efficiency > 0:
+        raise InputError(d.source, "supply.boost_efficiency", f"missing: channel {ch.name!r} of {system.source} "
+                         "has a boosted peak, whose converter draws from the shared rail, expected its efficiency "
+                         "(e.g. 0.85)")
     if why is not None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
-                         "in a system yet; expected a linear coil (with an [armature] or an eddy term, not both) "
-                         "or a flux-linkage curve (no [armature]; an eddy term under a voltage-mode hold), one "
-                         "switch or a full bridge and a voltage-mode fixed, supply-table or closed-loop hold, or a "
-                         "current-mode hold (hysteretic on a curve; no [armature]; on a full bridge a "
-                         "fixed or supply-table hold only)")
+                         "in a system yet; expected a linear coil (with an [armature], an eddy term or both) "
+                         "or a flux-linkage curve (no [armature]), one switch or a full bridge and a voltage-mode "
+                         "fixed, supply-table or closed-loop hold, a current-mode hold (no [armature]; with an "
+                         "eddy term on a linear coil; one switch), or a latching coil; a boosted peak without an "
+                         "eddy term")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:
@@ -826,7 +1062,8 @@ def _droop(system: System, channels, designs, rails, offsets, params) -> dict:
     out = {}
     for name, ks in rails.items():
         if any(designs[k].drive.coil.flux_current or designs[k].drive.coil.eddy_resistance
-               or designs[k].drive.switch.topology == "full_bridge" for k in ks):
+               or designs[k].drive.switch.topology == "full_bridge" or is_latch(designs[k])
+               or designs[k].drive.supply.boosted for k in ks):
             out[name] = _droop_bound(system, channels, designs, ks, offsets, params)
             continue
         r_on, r_off, v_off, l, tp, duty = [], [], [], [], [], []
@@ -893,8 +1130,7 @@ def _droop_bound(system: System, channels, designs, ks, offsets, params) -> dict
             "droop_method": ("a bound from the channels' rail-current bounds at the lowest supply, peaks "
                              "and holds (a saturating coil, an eddy term or a full bridge is on the rail; a "
                              "bridge's fast decay returning energy only lifts the bus)"),
-            "hold_droop_v": s.source_resistance * sum(
-                designs[k].hold.max_mean_current_a * designs[k].hold.duty for k in ks)}
+            "hold_droop_v": s.source_resistance * sum(_hold_average(designs[k]) for k in ks)}
 
 
 def _heat(board_ch, channels, designs) -> dict:
@@ -903,6 +1139,9 @@ def _heat(board_ch, channels, designs) -> dict:
     the shared freewheel parts' sums; and the board's total."""
     per = []
     for c, d in zip(channels, designs):
+        if is_latch(d):
+            per.append(_latch_heat(c.name, d))
+            continue
         cyc = d.thermal_cycle.freewheel if d.thermal_cycle is not None else None
         fw = cyc["average_power_w"] if cyc else d.hold.freewheel_power_w
         per.append({"channel": c.name, "freewheel_w": fw, "switch_w": d.hold.switch_power_w,

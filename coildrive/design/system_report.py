@@ -20,12 +20,16 @@ def print_system(r: SystemResult) -> None:
         t.add_column(col, no_wrap=col != "ok")
     for c in r.channels:
         d = c.design
+        if getattr(d, "latch", None) is not None:   # a latching coil: its pulses, no hold
+            ticks = "/".join(str(p.ticks) for p in d.latch.pulses)
+            hold, compare = "latching", "set/reset pulse ticks"
+        else:
+            ticks = str(d.pull_in.peak_ticks)
+            hold = f"{d.hold.min_mean_current_a:.3g}..{d.hold.max_mean_current_a:.3g}"
+            compare = f"{d.timer.compare_ticks}/{d.timer.period_ticks}"
         t.add_row(*(escape(x) for x in (
-            c.name, str(c.number), str(d.pull_in.peak_ticks),
-            f"{c.offset_ticks}" + (" fixed" if c.offset_fixed else ""),
-            f"{d.hold.min_mean_current_a:.3g}..{d.hold.max_mean_current_a:.3g}",
-            f"{d.timer.compare_ticks}/{d.timer.period_ticks}",
-            "yes" if d.ok else "NO: " + ", ".join(x.name for x in d.failed))))
+            c.name, str(c.number), ticks, f"{c.offset_ticks}" + (" fixed" if c.offset_fixed else ""),
+            hold, compare, "yes" if d.ok else "NO: " + ", ".join(x.name for x in d.failed))))
     con.print(t)
     s = Table(title="shared by the channels")
     s.add_column("figure")

@@ -13,7 +13,16 @@ bus droops and its droop is fed back into the coils, exact between switching mom
 (:func:`coildrive.model.shared_bus.on_bus`; ``SystemRun.bus``); any other rail runs on
 a stiff bus (``SystemRun.stiff`` says why).
 
-A channel with a moving armature, a flux-linkage curve, an eddy-current term or a full
+A current-mode channel runs its own actuation
+(:func:`coildrive.design.hold_current.current_mode_actuation`: the nominal thresholds
+switch it, each edge a sample), on at its start offset for the peak its firmware picks.
+A boosted channel runs its own actuation (the peak from the boost until its threshold at
+the nominal sense chain, the hold from the main supply), on at its start offset; its draw
+from the rail is :func:`boost_draw` (the converter's input in place of the peak's coil
+current).
+A latching channel (:func:`latch_run`) fires its set pulse at its start offset and its
+reset pulse ``hold_time`` later (at least its shortest interval).
+Any other channel with a moving armature, a flux-linkage curve, an eddy-current term or a full
 bridge runs the model's own single-channel actuation
 (:func:`coildrive.model.waveform.actuation`) as the reference driver switches it, in its
 once-a-period handler: on at the first period start of the shared timer at or after its
@@ -24,11 +33,6 @@ at a step (an eddy term's terminal current at a switching moment) the grid keeps
 after it. It draws its terminal current from the rail while its switch conducts; a full
 bridge's fast decay (all four switches open, the body diodes conducting) returns the
 current to the rail: negative.
-
-A current-mode channel's hold switches on its own thresholds, not on the timer: its peak
-runs as the driver times it (as above), then its hold and release are the current-mode
-actuation (:func:`coildrive.design.hold_current.current_mode_actuation`: the comparator's
-thresholds and delay, exact segments), drawn while its switch conducts.
 """
 
 from __future__ import annotations
@@ -44,6 +48,7 @@ from ..model.shared_pwm import HOLD_OFF, RELEASE, ChannelRun, channel_run
 from ..model.waveform import actuation
 from .firmware import firmware_setting
 from .hold_current import current_mode_actuation
+from .system import is_latch
 from .result import SystemResult
 
 
@@ -94,8 +99,9 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
     from ..errors import InputError
     from .core import MAX_WAVEFORM_SAMPLES
 
-    f_max = max(max(c.design.hold.frequency_hz, c.design.hold.current_mode.max_frequency_hz
-                    if c.design.hold.current_mode is not None else 0.0) for c in result.channels)
+    f_max = max([max(c.design.hold.frequency_hz, c.design.hold.current_mode.max_frequency_hz
+                     if c.design.hold.current_mode is not None else 0.0)
+                 for c in result.channels if not is_latch(c.design)] + [1.0])
     samples = len(result.channels) * (2.0 * points * hold_time * f_max + 80.0 * points) * 2
     if not samples <= MAX_WAVEFORM_SAMPLES:
         raise InputError("--hold-time", "", f"{hold_time:g} s of hold on {len(result.channels)} channels "
@@ -103,20 +109,33 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
                          f"{samples:,.0f} samples, more than the {MAX_WAVEFORM_SAMPLES:,} one run may "
                          "have: shorten --hold-time or lower --points")
     runs, periods, duties, starts = [], [], [], []
+    boosts: dict[int, float] = {}      # a boosted channel's peak (s), by its run
     hold_clamp = {}    # a linear one-switch channel whose hold's off-times go through a clamp
     for c in result.channels:
         d = c.design
         drv = d.drive
+        if is_latch(d):
+            runs.append(latch_run(d, supply, coil_temp, hold_time, r_factor, l_factor, 40 * points))
+            starts.append(c.offset_s)
+            periods.append(0.0)
+            duties.append(0.0)
+            continue
         duty, peak = firmware_setting(d, supply, coil_temp)
         period = 1.0 / d.hold.frequency_hz
         periods.append(period)
         duties.append(duty)
         if d.hold.mode == "current":
-            # its hold switches on its thresholds, not on the timer; its peak as the driver's
-            t_on, t_peak = driver_peak(c.offset_s, peak, period)
-            runs.append(current_mode_actuation(drv, d.hold.thresholds, supply, coil_temp, t_peak,
-                                               hold_time, r_factor, l_factor, points, label=c.name))
-            starts.append(t_on)
+            # its own thresholds switch it, not the timer: on at its offset for its peak
+            runs.append(current_mode_actuation(drv, d.hold.thresholds, supply, coil_temp, peak, hold_time,
+                                               r_factor, l_factor, points, label=c.name))
+            starts.append(c.offset_s)
+            continue
+        if drv.supply.boosted:
+            # the peak ends at the current threshold, not on the timer: on at the offset
+            runs.append(actuation(drv, supply, coil_temp, peak, duty, d.hold.frequency_hz, hold_time,
+                                  r_factor, l_factor, points, label=c.name))
+            starts.append(c.offset_s)
+            boosts[len(runs) - 1] = peak
             continue
         if own_waveform(drv):
             t_on, t_peak = driver_peak(c.offset_s, peak, period)
@@ -135,25 +154,29 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
     t = np.unique(np.concatenate([r.samples(points) if isinstance(r, ChannelRun) else r.time + s0
                                   for r, s0 in zip(runs, starts)]))
     current, on, draw = [], [], []
-    for c, r, s0 in zip(result.channels, runs, starts):
+    for k, (c, r, s0) in enumerate(zip(result.channels, runs, starts)):
         clamp = c.design.drive.freewheel.type == "clamp"
         if isinstance(r, ChannelRun):
             i, sw = r.current(t), r.switch_on(t)
             # a clamp across the switch: the coil's current flows from the rail through it
             # while it decays through the clamp (the hold's off-times unless bypassed, the release)
             kind = r.kind_at(t)
-            through = ((kind == RELEASE) | ((kind == HOLD_OFF) & hold_clamp[len(current)])) & (i > 0)
+            through = ((kind == RELEASE) | ((kind == HOLD_OFF) & hold_clamp[k])) & (i > 0) if clamp \
+                else np.zeros(len(t), bool)
             current.append(i)
             on.append(sw)
             draw.append(i * np.maximum(sw, through))
-        else:
-            i, sw, back, bypass = on_grid(r, s0, t)
-            current.append(i)
-            on.append(sw)
-            through = ((sw == 0) & (bypass == 0) & (i > 0)) if clamp else np.zeros(len(t), bool)
-            draw.append(i * np.maximum(sw, through) - i * back)
+            continue
+        i, sw, back, bypass = on_grid(r, s0, t)
+        current.append(i)
+        on.append(sw)
+        if k in boosts:
+            draw.append(boost_draw(c.design.drive, r, s0, boosts[k], supply, t, i, sw))
+            continue
+        through = ((sw == 0) & (bypass == 0) & (i > 0)) if clamp else np.zeros(len(t), bool)
+        draw.append(i * np.maximum(sw, through) - i * back)
     buses, stiff = {}, []
-    for k, rail_row in enumerate(result.rails):
+    for rail_row in result.rails:
         if not rail_row.get("source_resistance_ohm"):
             continue
         ks = [n for n, c in enumerate(result.channels) if c.name in rail_row["channels"]]
@@ -178,13 +201,81 @@ def _stiff_reason(channels, runs) -> str | None:
     on one switch, voltage-mode holds, a freewheel path across the coil)."""
     for c, r in zip(channels, runs):
         if not isinstance(r, ChannelRun):
-            what = ("a current-mode hold" if c.design.hold.mode == "current" else
+            what = ("a latching coil" if is_latch(c.design) else
+                    "a current-mode hold" if c.design.hold.mode == "current" else
+                    "a boosted peak" if c.design.drive.supply.boosted else
                     "a moving armature, a flux-linkage curve, an eddy term or a full bridge")
             return f"channel {c.name!r} has {what}: the bus is taken stiff (its droop is the design's)"
         if c.design.drive.freewheel.type == "clamp":
             return (f"channel {c.name!r} decays through a clamp across its switch, from the rail: the "
                     "bus is taken stiff (its droop is the design's)")
     return None
+
+
+@dataclass(frozen=True)
+class LatchRun:
+    """A latching coil's set and reset pulses as :func:`on_grid` reads a run: ``time`` (s
+    from the set pulse's switch-on), ``current`` (A, the pulsing winding's, its magnitude),
+    ``switch_on`` (0/1, a pulse's switches), ``switches`` (a full bridge's: both pulses'
+    pairs, so that all four open with current flowing is its fast decay into the rail;
+    else ``None``)."""
+
+    time: np.ndarray
+    current: np.ndarray
+    switch_on: np.ndarray
+    switches: dict | None
+
+
+def latch_run(d, supply: float, coil_temp: float, hold_time: float, r_factor: float, l_factor: float,
+              points: int) -> LatchRun:
+    """A latching channel in ``simulate SYSTEM.toml``: its set pulse at its start, its reset
+    pulse ``hold_time`` s later (at least the design's shortest interval, and after the set
+    pulse's decay), each the winding's own pulse and decay
+    (:func:`coildrive.model.latch_waveform.pulse`)."""
+    from ..model.latch_waveform import pulse
+    from .latch import winding_drive
+
+    by = {p.name: p for p in d.latch.pulses}
+    drive = d.drive
+    ts, is_, ons, _, tz, _, _ = pulse(drive, supply, coil_temp, r_factor, l_factor, by["set"].time_s, points)
+    tr, ir, onr, _, _, _, _ = pulse(winding_drive(drive, True), supply, coil_temp, r_factor, l_factor,
+                                    by["reset"].time_s, points)
+    interval = d.latch.interval_s if math.isfinite(d.latch.interval_s) else 0.0
+    gap = max(hold_time, interval, tz)
+    (ts, is_, ons), (tr, ir, onr) = (_off_edge(ts, is_, ons), _off_edge(tr, ir, onr))
+    on = np.concatenate([ons, onr]).astype(np.int8)
+    switches = None
+    if full_bridge(drive):
+        pair_set = np.concatenate([ons, 0 * onr]).astype(np.int8)
+        pair_reset = np.concatenate([0 * ons, onr]).astype(np.int8)
+        switches = {"Q1": pair_set, "Q4": pair_set, "Q3": pair_reset, "Q2": pair_reset}
+    return LatchRun(np.concatenate([ts, gap + tr]), np.abs(np.concatenate([is_, ir])), on, switches)
+
+
+def boost_draw(drive, w, start: float, peak: float, supply: float, t, i, sw) -> np.ndarray:
+    """A boosted channel's current from the rail (A) on the grid ``t`` (s): its coil's
+    current while its switch conducts, except in the peak (the boost feeds it; the main
+    supply's diode blocks), plus its boost converter's input, its output over
+    ``supply.boost_efficiency`` at the bus ``supply`` V: with a capacitor ``boost_power``
+    while the capacitor is below its full charge (its discharge in the peak, then the
+    recharge), with an ideal boost ``V_b i`` in the peak."""
+    s = drive.supply
+    rel = t - start
+    in_peak = (rel >= 0) & (rel < peak)
+    coil = np.where(in_peak, 0.0, i * sw)
+    if s.boost_capacitance > 0:
+        trace = w.boost_voltage
+        level = np.interp(rel, w.time, trace, left=trace[0], right=trace[-1])
+        charging = (rel >= 0) & (level < trace[0] * (1 - 1e-9))
+        return coil + np.where(charging | in_peak, s.boost_power / (s.boost_efficiency * supply), 0.0)
+    return coil + np.where(in_peak, s.boost * i / (s.boost_efficiency * supply), 0.0)
+
+
+def _off_edge(t, i, on):
+    """A pulse's samples with its end repeated, off: on a grid the switch is then off at
+    once after the pulse (:func:`on_grid` keeps the value after a step)."""
+    k = int(np.flatnonzero(on)[-1]) + 1
+    return np.insert(t, k, t[k - 1]), np.insert(i, k, i[k - 1]), np.insert(on, k, 0)
 
 
 def own_waveform(drive) -> bool:
@@ -221,6 +312,6 @@ def on_grid(w, start: float, t: np.ndarray) -> tuple[np.ndarray, ...]:
     if w.switches is not None:
         open_all = np.all([s[last][k] == 0 for s in w.switches.values()], axis=0)
         back = (inside & open_all & (i > 0)).astype(np.int8)
-    bypass = np.zeros(len(t), np.int8) if w.bypass_on is None else \
+    bypass = np.zeros(len(t), np.int8) if getattr(w, "bypass_on", None) is None else \
         np.where(inside, w.bypass_on[last][k], 0).astype(np.int8)
     return i, sw, back, bypass
