@@ -1480,8 +1480,10 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     diode/zener/resistor freewheel (split decay too) or a clamp on
     a low-side switch, a stiff main supply, a PWM
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
-    mode), a peak that ends at its threshold, no moving armature.
-    Anything else is refused in one line."""
+    mode), a peak that ends at its threshold. A moving armature
+    (:mod:`coildrive.model.armature_boost`): a linear coil without an eddy term, one switch
+    (low or high side), a voltage-mode open-loop hold (fixed or supply table), no on/off
+    cycle. Anything else is refused in one line."""
     if not supply.boosted:
         return
     if supply.boost * (1.0 - supply.boost_tolerance) <= supply.max:
@@ -1497,8 +1499,16 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = "supply.source_resistance", "a drooping main supply"
     elif hold.mode == "latch":
         key, why = "hold.mode", "a latching coil"
-    elif armature is not None:
-        key, why = "armature", "a moving armature"
+    elif armature is not None and coil.eddy_resistance:
+        key = "coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance"
+        why = "a moving armature and an eddy-current term together"
+    elif armature is not None and switch.topology == "full_bridge":
+        key, why = "armature", "a moving armature on a full bridge"
+    elif armature is not None and _open_loop_refusal(hold, None):
+        key, why = _open_loop_refusal(hold, None)
+        why += " and a moving armature"
+    elif armature is not None and duty is not None:
+        key, why = "duty", "a moving armature and an on/off cycle ([duty]) together"
     elif pull_in.compensate:
         key, why = "pull_in.compensate", ("a supply-compensated peak (the boosted peak runs from the boost, "
                                           "not the main supply, and ends at its threshold: nothing to compensate)")
@@ -1512,8 +1522,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "full bridge, a "
                          "diode/zener/resistor freewheel (split decay too; a clamp on a low-side "
                          "switch), a stiff main supply, a "
-                         "voltage-mode or current-mode hold, a peak without compensate or settle_time, no "
-                         "[armature]")
+                         "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
+                         "with [armature]: a linear coil without an eddy term, one switch, a voltage-mode "
+                         "open-loop hold, no [duty]")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,

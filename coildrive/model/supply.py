@@ -61,6 +61,7 @@ All functions broadcast over numpy arrays; units are A, V, ohm, H, F, s.
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 
 import numpy as np
@@ -106,12 +107,18 @@ class Bus:
 
 def bus(v_s, r_s, c, r, l, r_e=None) -> Bus:
     """The circuit of the module docstring at each point (``r_s`` > 0, ``c`` > 0), with an
-    eddy resistance ``r_e`` ohm across the magnetising branch ``l`` H (``None``: none)."""
+    eddy resistance ``r_e`` ohm across the magnetising branch ``l`` H (``None``: none).
+    ``r_s = inf`` is a charged capacitor with no source behind it (a boost capacitor:
+    ``i_ss = v_ss = 0``, the moving armature's boosted peak,
+    :func:`coildrive.model.armature_runs.pull_in` with ``trip``)."""
     g_e = 0.0 if r_e is None else 1.0 / np.asarray(r_e, float)
     v_s, r_s, c, r, l, g_e = np.broadcast_arrays(*(np.asarray(x, float) for x in (v_s, r_s, c, r, l, g_e)))
     l1, l2 = linear2.eigenvalues(*_matrix(r_s, c, r, l, g_e))
     i_ss = v_s / (r + r_s)
-    return Bus(v_s, r_s, c, r, l, l1, l2, i_ss, v_s - r_s * i_ss, g_e)
+    # r_s = inf: a charged capacitor with no source (a boost capacitor): it ends empty
+    none = np.isinf(r_s)
+    v_ss = np.where(none, 0.0, v_s - np.where(none, 0.0, r_s) * i_ss)
+    return Bus(v_s, r_s, c, r, l, l1, l2, i_ss, v_ss, g_e)
 
 
 def _matrix(r_s, c, r, l, g_e) -> tuple:
@@ -296,12 +303,19 @@ def integrals_from(t, b: Bus, i0, v0, nodes: int = 64) -> tuple[np.ndarray, np.n
     det = a11 * a22 - a12 * a21
     charge = b.i_ss * t + (a22 * (i1 - i0) - a12 * (v1 - v0)) / det
     volts = b.v_ss * t + (a11 * (v1 - v0) - a21 * (i1 - i0)) / det   # int v dt, V*s
-    x, w = np.polynomial.legendre.leggauss(nodes)
+    x, w = _gauss(nodes)
     s = 0.5 * t[..., None] * (x + 1.0)
     wide = _expand(b)
     ii = terminal(*state_from(s, wide, i0[..., None], v0[..., None]), wide)
     return ((charge + b.g_e * volts) / (1.0 + b.r * b.g_e),
             0.5 * t * np.sum(w * ii * ii, axis=-1))
+
+
+@functools.lru_cache(maxsize=8)
+def _gauss(nodes: int) -> tuple[np.ndarray, np.ndarray]:
+    """Gauss-Legendre nodes and weights on [-1, 1] (numpy's ``leggauss``, computed once:
+    its eigenvalue solve costs more than the quadrature it serves)."""
+    return np.polynomial.legendre.leggauss(nodes)
 
 
 def _expand(b: Bus) -> Bus:
