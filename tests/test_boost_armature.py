@@ -216,8 +216,12 @@ def test_simulate_runs_the_peak_from_the_boost_and_the_armature_onto_the_seat(tm
 
 def test_what_stays_refused_is_refused_in_one_line(tmp_path):
     """An eddy term, a current-mode hold, an on/off cycle and the Monte Carlo stay refused
-    with a moving armature on the boosted peak: one line naming the key, exit 2."""
-    text = EXAMPLE.read_text()
+    with a moving armature on the boosted peak: one line naming the key (exit 2)."""
+    from coildrive.config import load_drive
+    from coildrive.errors import InputError
+
+    text = EXAMPLE.read_text().replace('board = "lab-m32-zener"',
+                                       f'board = "{EXAMPLES.parent / "boards" / "lab-m32-zener.toml"}"')
     cases = {
         "coil.eddy_resistance": text.replace('inductance_tolerance = 0.10', 'inductance_tolerance = 0.10\neddy_resistance = "2 kohm"'),
         "hold.mode": text.replace('frequency = "20 kHz"', 'frequency = "20 kHz"\nmode = "current"'),
@@ -226,8 +230,34 @@ def test_what_stays_refused_is_refused_in_one_line(tmp_path):
     for want, body in cases.items():
         path = tmp_path / "x.toml"
         path.write_text(body)
-        r = run_cli("design", str(path), cwd=EXAMPLES)
-        assert r.returncode == 2, (want, r.stderr)
-        assert want in r.stderr and "boost" in r.stderr and r.stderr.count("\n") == 1, r.stderr
+        with pytest.raises(InputError) as err:
+            load_drive(path)
+        assert err.value.key == want and "boost" in str(err.value) and "\n" not in str(err.value)
     r = run_cli("design", str(EXAMPLE), "--samples", "10", cwd=EXAMPLES)
-    assert r.returncode == 2 and "--samples" in r.stderr
+    assert r.returncode == 2 and "--samples" in r.stderr and r.stderr.count("\n") == 1
+
+
+def test_emulated_drive_passes_check_and_a_weak_coil_fails(tmp_path):
+    """The virtual bench device runs the design's actuation (the boost, the threshold, the
+    armature into the hold): its capture passes ``check``; a coil 40 % over its
+    resistance fails it (plumbing: the device shares the design's physics)."""
+    import sys
+    from pathlib import Path
+
+    sys.path.insert(0, str(Path(__file__).parent))
+    from test_emulator_device import capture_of, run as run_device
+
+    from coildrive.bench.check import check_capture
+    from coildrive.bench.device import DeviceOptions, VirtualDevice
+    from coildrive.config import load_drive
+    from coildrive.design import design
+
+    d = design(load_drive(EXAMPLE))
+    dev = VirtualDevice(d.drive, DeviceOptions(noise_codes=1.0, seed=3, hold_time=0.004), design=d)
+    assert dev.peak_time < d.pull_in.peak_time_s, "ends at the threshold, before the time-out"
+    msgs, _ = run_device(dev, 0.05 + 2 * dev.period, step=0.05)
+    report = check_capture(capture_of(msgs, tmp_path / "c.cdcap"), d)
+    assert report.ok, [(i.name, i.status, i.detail) for i in report.items if i.status == "FAIL"]
+    bad = VirtualDevice(d.drive, DeviceOptions(resistance_scale=1.4, hold_time=0.004), design=d)
+    msgs, _ = run_device(bad, 0.05 + bad.period, step=0.05)
+    assert not check_capture(capture_of(msgs, tmp_path / "bad.cdcap"), d).ok
