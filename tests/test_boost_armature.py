@@ -271,7 +271,8 @@ def test_what_stays_refused_is_refused_in_one_line(tmp_path):
 def test_emulated_drive_passes_check_and_a_weak_coil_fails(tmp_path):
     """The virtual bench device runs the design's actuation (the boost, the threshold, the
     armature into the hold): its capture passes ``check``; a coil 40 % over its
-    resistance fails it (plumbing: the device shares the design's physics)."""
+    resistance fails it (plumbing: the device shares the design's physics). Firmware in
+    the loop refuses it (one line at ``emulate --firmware``)."""
     import sys
     from pathlib import Path
 
@@ -284,6 +285,9 @@ def test_emulated_drive_passes_check_and_a_weak_coil_fails(tmp_path):
     from coildrive.design import design
 
     d = design(load_drive(EXAMPLE))
+    from coildrive.bench.firmware_device import FirmwareDevice
+    with pytest.raises(ValueError, match="boosted peak"):   # firmware in the loop: not yet
+        FirmwareDevice.check_design(d)
     dev = VirtualDevice(d.drive, DeviceOptions(noise_codes=1.0, seed=3, hold_time=0.004), design=d)
     assert dev.peak_time < d.pull_in.peak_time_s, "ends at the threshold, before the time-out"
     msgs, _ = run_device(dev, 0.05 + 2 * dev.period, step=0.05)
