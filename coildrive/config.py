@@ -1481,9 +1481,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     a low-side switch, a stiff main supply, a PWM
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
     mode), a peak that ends at its threshold. A moving armature
-    (:mod:`coildrive.model.armature_boost`): a linear coil without an eddy term, one switch
-    (low or high side), a voltage-mode open-loop hold (fixed or supply table), no on/off
-    cycle. Anything else is refused in one line."""
+    (:mod:`coildrive.model.armature_boost`): a linear coil without an eddy term, a
+    voltage-mode open-loop hold (fixed or supply table; on a full bridge slow decay, no
+    mixed decay), no on/off cycle. Anything else is refused in one line."""
     if not supply.boosted:
         return
     if supply.boost * (1.0 - supply.boost_tolerance) <= supply.max:
@@ -1502,11 +1502,11 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     elif armature is not None and coil.eddy_resistance:
         key = "coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance"
         why = "a moving armature and an eddy-current term together"
-    elif armature is not None and switch.topology == "full_bridge":
-        key, why = "armature", "a moving armature on a full bridge"
     elif armature is not None and _open_loop_refusal(hold, None):
         key, why = _open_loop_refusal(hold, None)
         why += " and a moving armature"
+    elif armature is not None and hold.fast_fraction > 0:
+        key, why = "hold.fast_fraction", "a moving armature and a full bridge's mixed-decay hold together"
     elif armature is not None and duty is not None:
         key, why = "duty", "a moving armature and an on/off cycle ([duty]) together"
     elif pull_in.compensate:
@@ -1523,8 +1523,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "diode/zener/resistor freewheel (split decay too; a clamp on a low-side "
                          "switch), a stiff main supply, a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
-                         "with [armature]: a linear coil without an eddy term, one switch, a voltage-mode "
-                         "open-loop hold, no [duty]")
+                         "with [armature]: a linear coil without an eddy term, a voltage-mode open-loop "
+                         "hold without mixed decay, no [duty]")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,

@@ -27,6 +27,7 @@ from __future__ import annotations
 
 import json
 import math
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -180,18 +181,30 @@ def test_an_ideal_boost_and_a_threshold_below_the_start_current():
     assert pull_in(pb, trip=0.3).status[0] == TRIPPED
 
 
-@pytest.fixture(scope="module")
-def designed() -> dict:
-    """``coildrive design --json`` of the example (a real subprocess)."""
-    r = run_cli("design", str(EXAMPLE), "--json", cwd=EXAMPLES)
+def _on_bridge(folder) -> str:
+    """The example on the bundled full bridge (``bridge-m32-fast``) with a 100 V switch."""
+    board = EXAMPLES.parent / "boards" / "bridge-m32-fast.toml"
+    path = folder / "bridge.toml"
+    path.write_text(EXAMPLE.read_text().replace('board = "lab-m32-zener"',
+                                                f'board = "{board}"\n[switch]\nmax_voltage = "100 V"'))
+    return str(path)
+
+
+@pytest.fixture(scope="module", params=["low_side", "full_bridge"])
+def designed(request, tmp_path_factory) -> tuple[str, dict]:
+    """``(drive file, coildrive design --json)`` of the example on its board (a low-side
+    switch) and on the full bridge (a real subprocess)."""
+    path = str(EXAMPLE) if request.param == "low_side" else _on_bridge(tmp_path_factory.mktemp("bridge"))
+    r = run_cli("design", path, "--json", cwd=EXAMPLES)
     assert r.returncode == 0, r.stderr
-    return json.loads(r.stdout)
+    return path, json.loads(r.stdout)
 
 
 def test_design_of_the_example_follows_the_armature_into_the_hold(designed):
-    """The bundled example designs (exit 0): seated at every corner, some within the peak
-    and the rest in the hold; the pull-in time is the latest seat, inside the window."""
-    d = designed
+    """The bundled example designs (exit 0; on a full bridge too): seated at every corner,
+    some within the peak and the rest in the hold; the pull-in time is the latest seat,
+    inside the window."""
+    d = designed[1]
     a = d["armature"]
     assert a["seated_corners"] == a["corners"]
     assert 0 < a["seated_in_peak_corners"] < a["corners"]
@@ -204,13 +217,15 @@ def test_design_of_the_example_follows_the_armature_into_the_hold(designed):
 
 def test_the_design_s_latest_seat_against_scipy_at_its_corner(designed):
     """The worst corner the design names (the hot coil at 9 V, the boost at its low end,
-    the threshold, the corner's hold duty): its seat time against solve_ivp (DOP853) on the
-    equations written afresh, within 1e-5 (the design's integrator runs at rtol 1e-7;
+    the threshold, the corner's hold duty; on the full bridge its drive path through two
+    switches and the slow decay in the hold's off-times): its seat time against solve_ivp
+    (DOP853) on the equations written afresh, within 1e-5 (the design's integrator runs at rtol 1e-7;
     measured 3.4e-6) -- the armature seats in the hold there."""
     from coildrive.config import load_drive
     from coildrive.model.circuit import loop
 
-    drive = load_drive(EXAMPLE)
+    path, designed = designed
+    drive = load_drive(path)
     a = designed["armature"]
     corner = next(c for c in designed["corners"] if c["label"] == a["seat_corner"])
     assert corner["label"].startswith("9 V") and "R+5%, L-10%" in corner["label"]
@@ -246,8 +261,9 @@ def test_simulate_runs_the_peak_from_the_boost_and_the_armature_onto_the_seat(tm
 
 
 def test_what_stays_refused_is_refused_in_one_line(tmp_path):
-    """An eddy term, a current-mode hold, an on/off cycle and the Monte Carlo stay refused
-    with a moving armature on the boosted peak: one line naming the key (exit 2)."""
+    """An eddy term, a current-mode hold, an on/off cycle, a full bridge's mixed decay and
+    the Monte Carlo stay refused with a moving armature on the boosted peak: one line
+    naming the key (exit 2)."""
     from coildrive.config import load_drive
     from coildrive.errors import InputError
 
@@ -258,6 +274,8 @@ def test_what_stays_refused_is_refused_in_one_line(tmp_path):
         "hold.mode": text.replace('frequency = "20 kHz"', 'frequency = "20 kHz"\nmode = "current"'),
         "duty": text + '\n[duty]\non_time = "5 ms"\noff_time = "20 ms"\n',
     }
+    bridge = Path(_on_bridge(tmp_path)).read_text()
+    cases["hold.fast_fraction"] = bridge.replace('frequency = "20 kHz"', 'frequency = "20 kHz"\nfast_fraction = 0.3')
     for want, body in cases.items():
         path = tmp_path / "x.toml"
         path.write_text(body)
@@ -274,7 +292,6 @@ def test_emulated_drive_passes_check_and_a_weak_coil_fails(tmp_path):
     resistance fails it (plumbing: the device shares the design's physics). Firmware in
     the loop refuses it (one line at ``emulate --firmware``)."""
     import sys
-    from pathlib import Path
 
     sys.path.insert(0, str(Path(__file__).parent))
     from test_emulator_device import capture_of, run as run_device
@@ -296,3 +313,17 @@ def test_emulated_drive_passes_check_and_a_weak_coil_fails(tmp_path):
     bad = VirtualDevice(d.drive, DeviceOptions(resistance_scale=1.4, hold_time=0.004), design=d)
     msgs, _ = run_device(bad, 0.05 + bad.period, step=0.05)
     assert not check_capture(capture_of(msgs, tmp_path / "bad.cdcap"), d).ok
+
+
+def test_simulate_on_a_full_bridge_switches_the_boost_in_the_peak_only(tmp_path):
+    """On the full bridge the boost switch (column ``boost_on``) is on from switch-on to the
+    threshold and off after it, while the armature moves on into the hold."""
+    out = tmp_path / "b.csv"
+    r = run_cli("simulate", _on_bridge(tmp_path), "--supply", "12", "--coil-temp", "40", "--hold-time",
+                "0.001", "--csv", str(out), cwd=EXAMPLES)
+    assert r.returncode == 0, r.stderr
+    data = np.genfromtxt(out, delimiter=",", names=True)
+    peak = float(r.stderr.split("peak ")[1].split(" ms")[0]) * 1e-3
+    t, on = data["time_s"], data["boost_on"]
+    assert np.all(on[t < peak * (1 - 1e-3)] == 1) and np.all(on[t > peak * (1 + 1e-3)] == 0)
+    assert data["position_m"][0] > 0 and np.min(data["position_m"]) == 0.0
