@@ -1483,7 +1483,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     mode), a peak that ends at its threshold. A moving armature
     (:mod:`coildrive.model.armature_boost`): a linear coil without an eddy term, a
     voltage-mode open-loop hold (fixed or supply table; on a full bridge slow decay, no
-    mixed decay), no on/off cycle. Anything else is refused in one line."""
+    mixed decay), an inelastic seat (no restitution), no on/off cycle. Anything else is
+    refused in one line."""
     if not supply.boosted:
         return
     if supply.boost * (1.0 - supply.boost_tolerance) <= supply.max:
@@ -1505,6 +1506,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     elif armature is not None and _open_loop_refusal(hold, None):
         key, why = _open_loop_refusal(hold, None)
         why += " and a moving armature"
+    elif armature is not None and armature.restitution > 0:
+        key, why = "armature.restitution", ("a moving armature that bounces off the seat (the end current's "
+                                            "bound holds while the armature closes or rests)")
     elif armature is not None and hold.fast_fraction > 0:
         key, why = "hold.fast_fraction", "a moving armature and a full bridge's mixed-decay hold together"
     elif armature is not None and duty is not None:
@@ -1523,8 +1527,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "diode/zener/resistor freewheel (split decay too; a clamp on a low-side "
                          "switch), a stiff main supply, a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
-                         "with [armature]: a linear coil without an eddy term, a voltage-mode open-loop "
-                         "hold without mixed decay, no [duty]")
+                         "with [armature]: a linear coil without an eddy term, no restitution, a "
+                         "voltage-mode open-loop hold without mixed decay, no [duty]")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,

@@ -261,8 +261,8 @@ def test_simulate_runs_the_peak_from_the_boost_and_the_armature_onto_the_seat(tm
 
 
 def test_what_stays_refused_is_refused_in_one_line(tmp_path):
-    """An eddy term, a current-mode hold, an on/off cycle, a full bridge's mixed decay and
-    the Monte Carlo stay refused with a moving armature on the boosted peak: one line
+    """An eddy term, a bouncing armature, a current-mode hold, an on/off cycle, a full
+    bridge's mixed decay and the Monte Carlo stay refused with a moving armature on the boosted peak: one line
     naming the key (exit 2)."""
     from coildrive.config import load_drive
     from coildrive.errors import InputError
@@ -275,6 +275,7 @@ def test_what_stays_refused_is_refused_in_one_line(tmp_path):
         "duty": text + '\n[duty]\non_time = "5 ms"\noff_time = "20 ms"\n',
     }
     bridge = Path(_on_bridge(tmp_path)).read_text()
+    cases["armature.restitution"] = text.replace('damping = "1 N*s/m"', 'damping = "1 N*s/m"\nrestitution = 0.3')
     cases["hold.fast_fraction"] = bridge.replace('frequency = "20 kHz"', 'frequency = "20 kHz"\nfast_fraction = 0.3')
     for want, body in cases.items():
         path = tmp_path / "x.toml"
