@@ -328,3 +328,19 @@ def test_simulate_on_a_full_bridge_switches_the_boost_in_the_peak_only(tmp_path)
     t, on = data["time_s"], data["boost_on"]
     assert np.all(on[t < peak * (1 - 1e-3)] == 1) and np.all(on[t > peak * (1 + 1e-3)] == 0)
     assert data["position_m"][0] > 0 and np.min(data["position_m"]) == 0.0
+
+
+def test_a_boost_too_small_to_reach_the_threshold_fails_in_words(tmp_path):
+    """A 2 uF boost capacitor cannot drive the coil to the threshold: the design fails
+    (exit 1) with boost_threshold and armature_seats saying so, and its JSON holds no
+    NaN or Infinity."""
+    board = EXAMPLES.parent / "boards" / "lab-m32-zener.toml"
+    path = tmp_path / "small.toml"
+    path.write_text(EXAMPLE.read_text().replace('boost_capacitance = "100 uF"', 'boost_capacitance = "2 uF"')
+                    .replace('board = "lab-m32-zener"', f'board = "{board}"'))
+    r = run_cli("design", str(path), "--json", cwd=EXAMPLES)
+    assert r.returncode == 1, r.stderr
+    assert "NaN" not in r.stdout and "Infinity" not in r.stdout
+    checks = {c["name"]: c for c in json.loads(r.stdout)["checks"]}
+    assert not checks["boost_threshold"]["ok"] and "below the threshold" in checks["boost_threshold"]["detail"]
+    assert not checks["armature_seats"]["ok"] and "never drives" in checks["armature_seats"]["detail"]

@@ -288,6 +288,8 @@ def boost_result(drive: Drive, grid: CornerGrid, res, rate: float) -> BoostResul
     if s.boost_power > 0:
         recharge = float(model.recharge_time(energy[k_e], s.boost_power))
         interval = float(max(np.max(t_end), np.max(t_low) if runs is None else 0.0)) + recharge
+        if runs is not None and not reached:   # (no longest peak where the threshold never comes)
+            interval = None
     cap = s.boost_capacitance
     return BoostResult(
         boost_v=s.boost, boost_min_v=s.boost * (1.0 - s.boost_tolerance), boost_max_v=v_top,

@@ -119,6 +119,10 @@ def armature_checks(drive: Drive, grid: CornerGrid, res: PointResults, ar: Armat
                    f"{a.stroke_current[k]:.4g} A at gap {_mm(a.stroke_gap[k])} but the coil "
                    f"carries at most {i_inf[k]:.4g} A")
             fix = " — the spring rate or the load keeps it from seating: lower them or raise the current"
+        elif a.boost is not None and not np.isfinite(pin.trip_time[k]):
+            why = ("the boost at its lowest never drives the moving armature's coil to the threshold "
+                   "there (see boost_threshold): no boosted peak to pull it in")
+            fix = " — a larger boost capacitance or a higher boost voltage"
         elif a.boost is not None:
             why = (f"not seated within {a.boost.window * 1e3:.4g} ms of switch-on (pull_in.margin x the "
                    f"longest boosted peak; gap {_mm(pin.stall_gap[k])} then): the threshold ends the "

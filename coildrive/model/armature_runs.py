@@ -120,6 +120,8 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     ``capacitance`` with ``source_resistance = inf``, no source behind it).
     """
     n = len(p)
+    if trip is not None and (p.curves is not None or p.eddy is not None):
+        raise ValueError("pull_in's trip is on a linear coil's current (no curves, no eddy term)")
     droop = p.droops
     curved = droop and p.curves is not None
     i_start = p.start_current
