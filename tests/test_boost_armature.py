@@ -344,3 +344,23 @@ def test_a_boost_too_small_to_reach_the_threshold_fails_in_words(tmp_path):
     checks = {c["name"]: c for c in json.loads(r.stdout)["checks"]}
     assert not checks["boost_threshold"]["ok"] and "below the threshold" in checks["boost_threshold"]["detail"]
     assert not checks["armature_seats"]["ok"] and "never drives" in checks["armature_seats"]["detail"]
+
+
+def test_an_ideal_boost_designs_and_simulates(tmp_path):
+    """Without boost_capacitance the boost is a stiff source: the design passes and
+    ``simulate`` runs the peak from it (boost_v flat at the boost) into the hold, where the
+    armature seats."""
+    board = EXAMPLES.parent / "boards" / "lab-m32-zener.toml"
+    text = EXAMPLE.read_text().replace('board = "lab-m32-zener"', f'board = "{board}"')
+    text = "\n".join(line for line in text.splitlines() if not line.startswith("boost_capacitance"))
+    path = tmp_path / "ideal.toml"
+    path.write_text(text)
+    out = tmp_path / "i.csv"
+    r = run_cli("simulate", str(path), "--supply", "9", "--coil-temp", "100", "--hold-time", "0.001",
+                "--csv", str(out), cwd=EXAMPLES)
+    assert r.returncode == 0, r.stderr
+    data = np.genfromtxt(out, delimiter=",", names=True)
+    assert np.all(data["boost_v"] == 48.0)
+    peak = float(r.stderr.split("peak ")[1].split(" ms")[0]) * 1e-3
+    seat = float(r.stderr.split("seated at ")[1].split(" ms")[0]) * 1e-3
+    assert peak < seat and np.min(data["position_m"]) == 0.0

@@ -763,8 +763,9 @@ def _boost_trace(drive: Drive, tr, peak_time: float) -> np.ndarray:
 
 
 def _joined(head, rest, v_bus: float):
-    """One trajectory of ``head`` (the peak on the drooping bus) and ``rest`` (on from its
-    end on the stiff bus at ``v_bus`` V): samples end to end, the moments of both."""
+    """One trajectory of ``head`` (the peak on the drooping bus, or from an ideal boost: no
+    bus) and ``rest`` (on from its end on the stiff bus at ``v_bus`` V): samples end to end,
+    the moments of both."""
     import dataclasses
 
     names = ["time", "flux", "position", "velocity", "switch_on", "charge", "square", "current"]
@@ -778,7 +779,7 @@ def _joined(head, rest, v_bus: float):
     return dataclasses.replace(
         rest, **cat, events={**rest.events, **head.events}, log=head.log + rest.log,
         impacts=head.impacts + rest.impacts,
-        bus=np.concatenate([head.bus, np.full(rest.time.size - first, v_bus)]))
+        bus=None if head.bus is None else np.concatenate([head.bus, np.full(rest.time.size - first, v_bus)]))
 
 
 def hold_samples(t_start: float, i0: float, v: float, r_on: float, r_off: float, v_off: float,
