@@ -1481,7 +1481,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     a low-side switch, a stiff main supply, a PWM
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
     mode), a peak that ends at its threshold. A moving armature
-    (:mod:`coildrive.model.armature_boost`): a linear coil without an eddy term, a
+    (:mod:`coildrive.model.armature_boost`): a linear coil (an eddy term too), a
     voltage-mode open-loop hold (fixed or supply table; on a full bridge slow decay, no
     mixed decay), an inelastic seat (no restitution), no on/off cycle. Anything else is
     refused in one line."""
@@ -1500,9 +1500,6 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = "supply.source_resistance", "a drooping main supply"
     elif hold.mode == "latch":
         key, why = "hold.mode", "a latching coil"
-    elif armature is not None and coil.eddy_resistance:
-        key = "coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance"
-        why = "a moving armature and an eddy-current term together"
     elif armature is not None and _open_loop_refusal(hold, None):
         key, why = _open_loop_refusal(hold, None)
         why += " and a moving armature"
@@ -1527,8 +1524,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "diode/zener/resistor freewheel (split decay too; a clamp on a low-side "
                          "switch), a stiff main supply, a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
-                         "with [armature]: a linear coil without an eddy term, no restitution, a "
-                         "voltage-mode open-loop hold without mixed decay, no [duty]")
+                         "with [armature]: no restitution, a voltage-mode open-loop hold without mixed "
+                         "decay, no [duty]")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,

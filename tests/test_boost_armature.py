@@ -53,8 +53,12 @@ def _params(**change) -> ArmatureParams:
 
 
 def reference(g: dict, v_b: float, c_b: float, r_b: float, trip: float, duty: float, period: float,
-              t_end: float) -> dict:
-    """solve_ivp (DOP853) of the module docstring's equations, piece by piece."""
+              t_end: float, r_e: float | None = None) -> dict:
+    """solve_ivp (DOP853) of the module docstring's equations, piece by piece. ``r_e``: an
+    eddy resistance across the inductance -- ``i`` is then the inductance's current, the
+    loop carries the terminal current ``(V + R_e i)/(R + R_e)`` (off: ``(R_e i - V_off)/(R_off
+    + R_e)`` while positive, else 0), the inductance sees ``R_e`` times the difference, the
+    threshold is on the terminal current and the capacitor feeds it."""
     from scipy.integrate import solve_ivp
 
     lc, beta, s = g["l_closed"], g["beta"], g["stroke"]
@@ -69,21 +73,31 @@ def reference(g: dict, v_b: float, c_b: float, r_b: float, trip: float, duty: fl
     def opening(x):
         return g["preload"] + g["rate"] * (s - x) + g["load"]
 
+    def loop(mode, y):
+        """(the inductance's voltage V, the terminal current A) in ``mode``."""
+        i, x, v, u = y
+        if mode == "boost":
+            drive, r = u, r_boost
+        elif mode == "on":
+            drive, r = g["v_on"], g["r_on"]
+        else:   # freewheeling, while the diode conducts
+            drive, r = -g["v_off"], g["r_off"]
+        if r_e is None:
+            if mode == "off" and i <= 0:
+                return 0.0, 0.0
+            return drive - r * i, i
+        term = (drive + r_e * i) / (r + r_e)
+        if mode == "off" and term <= 0:   # the freewheel blocks: the flux dies through R_e
+            return -r_e * i, 0.0
+        return r_e * (term - i), term
+
     def rhs(mode, free):
         def f(_t, y):
             i, x, v, u = y
-            if mode == "boost":
-                drive, r = u, r_boost
-            elif mode == "on":
-                drive, r = g["v_on"], g["r_on"]
-            else:   # freewheeling, while the diode conducts
-                drive, r = -g["v_off"], g["r_off"]
-            if mode == "off" and i <= 0:
-                di = 0.0
-            else:
-                di = (drive - r * i - i * slope(x) * v) / ind(x)
+            v_l, term = loop(mode, y)
+            di = (v_l - i * slope(x) * v) / ind(x)
             acc = (opening(x) + 0.5 * i * i * slope(x) - g["damping"] * v) / g["mass"] if free else 0.0
-            du = -i / c_b if mode == "boost" else 0.0
+            du = -term / c_b if mode == "boost" else 0.0
             return [di, v if free else 0.0, acc, du]
         return f
 
@@ -94,7 +108,7 @@ def reference(g: dict, v_b: float, c_b: float, r_b: float, trip: float, duty: fl
     start.terminal, start.direction = True, 1
 
     def at_trip(_t, y):
-        return y[0] - trip
+        return loop("boost", y)[1] - trip
     at_trip.terminal, at_trip.direction = True, 1
 
     def seat(_t, y):
@@ -120,7 +134,7 @@ def reference(g: dict, v_b: float, c_b: float, r_b: float, trip: float, duty: fl
         for mode, stop in (("on", out["trip"] + (k + duty) * period), ("off", out["trip"] + (k + 1) * period)):
             sol = solve_ivp(rhs(mode, True), (t, stop), y, events=[seat], **opts)
             t, y = float(sol.t[-1]), list(sol.y[:, -1])
-            y[0] = max(y[0], 0.0)
+            y[0] = max(y[0], 0.0) if r_e is None else y[0]
             if sol.t_events[0].size:
                 out["seat"] = t
                 break
@@ -261,8 +275,8 @@ def test_simulate_runs_the_peak_from_the_boost_and_the_armature_onto_the_seat(tm
 
 
 def test_what_stays_refused_is_refused_in_one_line(tmp_path):
-    """An eddy term, a bouncing armature, a current-mode hold, an on/off cycle, a full
-    bridge's mixed decay and the Monte Carlo stay refused with a moving armature on the boosted peak: one line
+    """A bouncing armature, a current-mode hold, an on/off cycle, a full bridge's mixed
+    decay and the Monte Carlo stay refused with a moving armature on the boosted peak: one line
     naming the key (exit 2)."""
     from coildrive.config import load_drive
     from coildrive.errors import InputError
@@ -270,7 +284,6 @@ def test_what_stays_refused_is_refused_in_one_line(tmp_path):
     text = EXAMPLE.read_text().replace('board = "lab-m32-zener"',
                                        f'board = "{EXAMPLES.parent / "boards" / "lab-m32-zener.toml"}"')
     cases = {
-        "coil.eddy_resistance": text.replace('inductance_tolerance = 0.10', 'inductance_tolerance = 0.10\neddy_resistance = "2 kohm"'),
         "hold.mode": text.replace('frequency = "20 kHz"', 'frequency = "20 kHz"\nmode = "current"'),
         "duty": text + '\n[duty]\non_time = "5 ms"\noff_time = "20 ms"\n',
     }
@@ -364,3 +377,44 @@ def test_an_ideal_boost_simulates(tmp_path):
     peak = float(r.stderr.split("peak ")[1].split(" ms")[0]) * 1e-3
     seat = float(r.stderr.split("seated at ")[1].split(" ms")[0]) * 1e-3
     assert peak < seat and np.min(data["position_m"]) == 0.0
+
+
+@pytest.mark.parametrize("trip,where", [(1.3, "hold"), (1.9, "peak")])
+def test_an_eddy_term_against_scipy(trip, where):
+    """An eddy resistance (200 ohm) across the inductance: the threshold on the terminal
+    current (what the sense sees), the force on the inductance's current; the threshold's
+    moment, the capacitor then and the seat against solve_ivp (DOP853) on the equations
+    written afresh (``reference(r_e=...)``), within 1e-6."""
+    p = ArmatureParams.make(**POINT, eddy=200.0)
+    pb = boost_params(p, *BOOST)
+    pin = boosted_pull_in(pb, p, trip, DUTY, PERIOD, 0.02, rtol=1e-9)
+    ref = reference(POINT, *BOOST, trip, DUTY, PERIOD, 0.02, r_e=200.0)
+    assert pin.status[0] == SEATED
+    assert bool(seated_in_peak(pin)[0]) == (where == "peak")
+    assert pin.trip_time[0] == pytest.approx(ref["trip"], rel=1e-6)        # scipy solve_ivp
+    assert pin.seat_time[0] == pytest.approx(ref["seat"], rel=1e-6)        # scipy solve_ivp
+    assert pin.trip_state[5, 0] == pytest.approx(ref["u"], rel=1e-8)       # scipy solve_ivp
+
+
+def test_an_eddy_term_designs_and_simulates(tmp_path):
+    """With an eddy term (200 ohm) the threshold is raised by the eddy share's bound
+    (V_b,max / R_e: the flux's current still carries current_margin x pull-in where the
+    terminal current trips), the armature seats at every corner, and ``simulate`` gives
+    the magnetising current and the boost capacitor."""
+    board = EXAMPLES.parent / "boards" / "lab-m32-zener.toml"
+    path = tmp_path / "eddy.toml"
+    path.write_text(EXAMPLE.read_text().replace('board = "lab-m32-zener"', f'board = "{board}"')
+                    .replace("inductance_tolerance = 0.10", 'inductance_tolerance = 0.10\neddy_resistance = "200 ohm"'))
+    r = run_cli("design", str(path), "--json", cwd=EXAMPLES)
+    d = json.loads(r.stdout)
+    assert d["boost"]["threshold_a"] == pytest.approx(0.75 * 1.5 + 48 * 1.05 / 200)
+    seats = next(c for c in d["checks"] if c["name"] == "armature_seats")
+    assert seats["ok"], seats["detail"]
+    assert d["pull_in"]["shortest_peak_current_a"] >= d["pull_in"]["force_current_a"]
+    out = tmp_path / "e.csv"
+    r = run_cli("simulate", str(path), "--supply", "9", "--coil-temp", "100", "--hold-time", "0.001",
+                "--csv", str(out), cwd=EXAMPLES)
+    assert r.returncode == 0, r.stderr
+    data = np.genfromtxt(out, delimiter=",", names=True)
+    assert {"magnetising_current_a", "boost_v", "position_m"} <= set(data.dtype.names)
+    assert np.min(data["position_m"]) == 0.0

@@ -3,7 +3,8 @@ over the points and the figures :mod:`coildrive.design.boost` takes from them in
 the still coil's closed form. Physics in :mod:`coildrive.model.armature_boost`.
 
 Four batched runs of the armature switched on from the boost, each ending where the coil's
-current first reaches a threshold (the motion's back-EMF, its dip at the seat, all in it):
+current first reaches a threshold (the motion's back-EMF, its dip at the seat, all in it;
+with an eddy term the terminal current, what the sense sees):
 
 * the pull-in (``slow``): the boost at its lowest until the threshold itself (the earliest
   any sense chain trips: the shortest push from the boost), then the hold from the main
@@ -69,12 +70,18 @@ def _boost(drive: Drive, p: ArmatureParams, high: bool) -> ArmatureParams:
 def _end(drive: Drive, pb: ArmatureParams, pin: PullInBatch, i_trip: float):
     """``(end of the peak s, the most current then A, the boost then V, energy J)`` one
     conversion after ``pin``'s trip at ``i_trip`` A: the open coil's stiff rise at the
-    boost's voltage bounds the current over it; the capacitor gives at most that current.
+    boost's voltage bounds the current over it (with an eddy term the magnetising current's
+    rise through the loop's Thevenin pair, and the terminal current ``(V_b + R_e i_m)/(R +
+    R_e)`` from it); the capacitor gives at most that current.
     Where the trip never comes: ``inf``, ``i_trip``, the boost's full voltage, NaN."""
     dt = 1.0 / drive.board.adc.sample_rate
     hit = np.isfinite(pin.trip_time)
     y = np.where(hit, pin.trip_state, 0.0)
-    i_end = rise_current(dt, i_trip, pb.v_on, pb.r_on, pb.l_open)
+    if pb.eddy is None:
+        i_end = rise_current(dt, i_trip, pb.v_on, pb.r_on, pb.l_open)
+    else:   # the magnetising current's bound (its Thevenin rise), then the terminal current's
+        i_m = rise_current(dt, pb.current(y[0], y[1]), pb.v_on, pb.r_on, pb.coil_open)
+        i_end = np.maximum((pb.v_on + pb.eddy * i_m) / (pb.r_on + pb.eddy), i_trip)
     if pb.droops:
         u = y[5] - i_end * dt / pb.capacitance
         y = np.concatenate([y[:5], u[None]])

@@ -182,9 +182,13 @@ def plan_peak(drive: Drive, grid: CornerGrid, first: PointResults, entry_results
 def shortest_peak_current(drive: Drive, res: PointResults, short_time: np.ndarray) -> np.ndarray:
     """Current (A) at the end of the shortest real peak at each point (plain RL rise; with
     an armature the open inductance, before it moves; a boosted peak with an armature ends
-    at the threshold)."""
+    at the threshold -- with an eddy term the magnetising current there)."""
     lp = res.loop
-    if _boost_runs(res) is not None:   # the armature's boosted peak ends at the threshold itself
+    runs = _boost_runs(res)
+    if runs is not None:   # the armature's boosted peak ends at the threshold itself
+        if drive.coil.eddy_resistance:   # the sense trips on the terminal current: the flux's there
+            y = runs.slow.trip_state
+            return res.armature.params.current(y[0], y[1]).reshape(np.shape(res.supply))
         return np.full(np.shape(res.supply), drive.pull_in.current_margin * drive.pull_in.current)
     ind = lp.inductance if drive.armature is None else open_inductance(drive, res.l_factor)
     return rise_current(drive, lp, short_time, ind)

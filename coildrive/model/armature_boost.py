@@ -8,7 +8,9 @@ sixth state with no source behind it (``source_resistance = inf``)::
 
     dlambda/dt = u - (R_on + R_b) i          C_b du/dt = -i          u(0) = V_b
 
-until the coil's current first reaches the threshold (``i_trip``). Where the armature
+until the coil's current first reaches the threshold (``i_trip``; with an eddy term the
+branch's flux and force, the loop's Thevenin pair, and the threshold on the terminal
+current the sense sees, as on the drooping bus of :mod:`coildrive.model.armature`). Where the armature
 seats first the threshold comes on the seat (the seated coil's closed form from the seat's
 state); where it comes first the armature is still open or in flight, and the hold
 carries it on: all such points at once, flown from PWM edge to PWM edge from the state
@@ -145,7 +147,8 @@ def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: f
         first = seat & np.isnan(res["impact_time"])
         res["impact_time"] = np.where(first, t, res["impact_time"])
         res["impact_speed"] = np.where(first, -y[2], res["impact_speed"])
-        res["dip_current"] = np.where(first, p.current(y[0], 0.0), res["dip_current"])
+        i_dip = p.current(y[0], 0.0)   # (with an eddy term what the sense sees: the terminal current)
+        res["dip_current"] = np.where(first, i_dip if p.eddy is None else p.terminal(i_dip, on), res["dip_current"])
         rebound = p.restitution * np.abs(y[2])
         bounce = (seat & (rebound >= REST_FRACTION * res["impact_speed"]) & (res["bounces"] < MAX_BOUNCES)
                   & (rebound > 0))

@@ -343,7 +343,8 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
     frozen, no stop events): a resting stretch of a coil whose curves have no closed form
     on the drooping bus; it ends (code START) where the flux linkage rises to ``flux_to`` Wb
     current_to : A per point (``inf``: none): a free flight ends (code TRIP) where the
-    coil's current rises to it -- a boosted peak's threshold (a linear coil, no eddy term)
+    coil's current (with an eddy term the terminal current) rises to it -- a boosted peak's
+    threshold (a linear coil)
 
     A batch of one point goes through :func:`fly_point` (Python floats: numpy's per-call
     overhead on 1-element arrays would dominate; same algorithm and results; the coil's
@@ -402,9 +403,10 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
         opn = ok & free & (y_new[1] > p.stroke)
         start = ok & ~free & (y_new[0] >= target)
         trip = np.zeros(n, bool)
-        if trip_at is not None:
-            c_old, dc_old = rhs.current_rate(y, k1)
-            c_new, dc_new = rhs.current_rate(y_new, k7)
+        if trip_at is not None:   # (with an eddy term the terminal current: what the sense sees)
+            rate = rhs.current_rate if rhs.t1 is None else rhs.terminal_rate
+            c_old, dc_old = rate(y, k1)
+            c_new, dc_new = rate(y_new, k7)
             trip = ok & free & (c_new >= trip_at)
         if rhs.t1 is None:
             zero = ok & ~on & live & (y_new[0] < 0.0)

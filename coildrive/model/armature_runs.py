@@ -111,8 +111,9 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     open stop, the seat until ``peak_time``) are integrated by the same batched
     integrator with the armature held at its stop (``fly(held=...)``).
 
-    ``trip`` (A, per point; a linear coil without an eddy term): a boosted peak's
-    threshold -- the run ends where the coil's current first reaches it (before the
+    ``trip`` (A, per point; a linear coil): a boosted peak's threshold on the coil's
+    current (with an eddy term the terminal current, what the sense sees) -- the run ends
+    where it first reaches it (before the
     motion: the open coil's closed form; in flight: the integrator's ``current_to``
     event) with status TRIPPED; where the armature seats first, the trip is the seated
     coil's closed-form rise from the seat (``trip_time``, ``trip_state``). ``p`` is then
@@ -120,8 +121,8 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     ``capacitance`` with ``source_resistance = inf``, no source behind it).
     """
     n = len(p)
-    if trip is not None and (p.curves is not None or p.eddy is not None):
-        raise ValueError("pull_in's trip is on a linear coil's current (no curves, no eddy term)")
+    if trip is not None and p.curves is not None:
+        raise ValueError("pull_in's trip is on a linear coil's current (no curves)")
     droop = p.droops
     curved = droop and p.curves is not None
     i_start = p.start_current
@@ -337,22 +338,8 @@ def _early_trip(p: ArmatureParams, trip, t_start):
     motion's start ``t_start`` s, when and the state then (rows of :func:`pull_in`'s run);
     ``inf`` and NaN elsewhere."""
     n = len(p)
-    b_open = p.bus(True) if p.droops else None
-    if p.droops:
-        t = bus_model.rise_time(trip, b_open)
-    else:
-        t = rise_time(trip, 0.0, p.v_on, p.r_on, p.l_open)
+    t, y = _rise_to(p, True, trip, np.zeros(n), p.v_on.astype(float))
     early = np.isfinite(t) & (t <= t_start)
-    if not early.any():
-        return np.full(n, np.inf), np.full((6 if p.droops else 5, n), np.nan)
-    tt = np.where(early, t, 0.0)
-    if p.droops:
-        q, s = bus_model.integrals_from(tt, b_open, 0.0, p.v_on)
-        extra = [bus_model.state(tt, b_open)[1]]
-    else:
-        q, s = rise_integrals(tt, 0.0, p.v_on, p.r_on, p.l_open)
-        extra = []
-    y = np.stack([p.flux_open(trip), p.stroke.astype(float), np.zeros(n), q, s] + extra)
     return np.where(early, t, np.inf), np.where(early, y, np.nan)
 
 
@@ -361,27 +348,46 @@ def _seated_trip(p: ArmatureParams, trip, seated, seat_time, seat_current, seat_
     """:func:`_early_trip`'s figures completed where the armature seated before the trip:
     the seated coil's closed-form rise from the seat's state to ``trip`` A (``inf`` where it
     never gets there)."""
-    n = len(p)
     if not seated.any():
         return trip_time, trip_y
     i0 = np.where(seated, seat_current, 0.0)
-    if p.droops:
-        b = p.bus(False)
-        u0 = np.where(seated, seat_bus, p.v_on)
-        dt = bus_model.time_to(trip, b, np.minimum(i0, trip), u0, np.full(n, np.inf))
-        ok = seated & np.isfinite(dt)
-        dt = np.where(ok, dt, 0.0)
-        q, s = bus_model.integrals_from(dt, b, i0, u0)
-        extra = [bus_model.state_from(dt, b, i0, u0)[1]]
-    else:
-        dt = rise_time(trip, np.minimum(i0, trip), p.v_on, p.r_on, p.l_closed)
-        ok = seated & np.isfinite(dt)
-        dt = np.where(ok, dt, 0.0)
-        q, s = rise_integrals(dt, i0, p.v_on, p.r_on, p.l_closed)
-        extra = []
-    y = np.stack([p.flux_closed(trip), np.zeros(n), np.zeros(n), np.where(ok, seat_q, 0.0) + q,
-                  np.where(ok, seat_s, 0.0) + s] + extra)
+    u0 = np.where(seated, seat_bus, p.v_on) if p.droops else p.v_on.astype(float)
+    dt, y = _rise_to(p, False, trip, i0, u0)
+    ok = seated & np.isfinite(dt)
+    y[3] = y[3] + np.where(ok, seat_q, 0.0)
+    y[4] = y[4] + np.where(ok, seat_s, 0.0)
     return np.where(ok, seat_time + dt, trip_time), np.where(ok, y, trip_y)
+
+
+def _rise_to(p: ArmatureParams, open_: bool, trip, i0, u0):
+    """``(s, state)``: the armature resting on the open stop (``open_``) or the seat, the
+    switch on from the magnetising current ``i0`` A (and on a drooping bus the capacitor at
+    ``u0`` V): when the sensed current (with an eddy term the terminal current) first
+    reaches ``trip`` A (``inf`` where never) and the run's state then (``q``, ``sq`` from
+    this start; 0 rows where never). Closed form: :mod:`coildrive.model.supply` on a
+    drooping bus (or a boost capacitor), :mod:`coildrive.model.rl` (an eddy term's
+    Thevenin pair) on a stiff one."""
+    n = len(p)
+    coil = p.coil_open if open_ else p.coil_closed
+    if p.droops:
+        b = p.bus(open_)
+        t = bus_model.time_to(trip, b, i0, u0, np.full(n, np.inf), sensed=p.eddy is not None)
+        tt = np.where(np.isfinite(t), t, 0.0)
+        q, s = bus_model.integrals_from(tt, b, i0, u0)
+        i_m, u = bus_model.state_from(tt, b, i0, u0)
+        extra = [u]
+    else:
+        target = trip
+        if p.eddy is not None:   # the terminal current (V + R_e i_m)/(R + R_e): its i_m
+            target = np.maximum(((p.r_on + p.eddy) * trip - p.v_on) / p.eddy, i0)
+        t = rise_time(np.maximum(target, i0), i0, p.v_on, p.r_on, coil)
+        tt = np.where(np.isfinite(t), t, 0.0)
+        q, s = rise_integrals(tt, i0, p.v_on, p.r_on, coil)
+        i_m = rise_current(tt, i0, p.v_on, p.r_on, coil)
+        extra = []
+    flux = p.flux_open(i_m) if open_ else p.flux_closed(i_m)
+    x = p.stroke.astype(float) if open_ else np.zeros(n)
+    return t, np.stack([flux, x, np.zeros(n), q, s] + extra)
 
 
 def _held_rise(p: ArmatureParams, i_inf, stiff, rtol, want, query_y, low, low_until):
