@@ -1483,8 +1483,11 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     the hand-over: :func:`coildrive.design.supply.handover_bus`; not with an eddy term or a
     full bridge), a PWM
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
-    mode), a peak that ends at its threshold, no moving armature.
-    Anything else is refused in one line."""
+    mode), a peak that ends at its threshold. A moving armature
+    (:mod:`coildrive.model.armature_boost`): a linear coil (an eddy term too), a
+    voltage-mode open-loop hold (fixed or supply table; on a full bridge slow decay, no
+    mixed decay), an inelastic seat (no restitution), no on/off cycle. Anything else is
+    refused in one line."""
     if not supply.boosted:
         return
     if supply.boost * (1.0 - supply.boost_tolerance) <= supply.max:
@@ -1511,8 +1514,18 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = "hold.mode", ("a latching coil (set and reset pulses from the boost would each end at a "
                                  "current threshold of their own, with the boost switch in the latch "
                                  "driver and its device: not built yet)")
-    elif armature is not None:
-        key, why = "armature", "a moving armature"
+    elif armature is not None and (hold.mode == "current" or hold.regulation == "closed_loop"):
+        key = "hold.mode" if hold.mode == "current" else "hold.regulation"
+        why = ("a current-mode" if hold.mode == "current" else "a closed-loop") + " hold and a moving armature"
+    elif armature is not None and supply.droops:
+        key, why = "supply.source_resistance", "a drooping main supply and a moving armature together"
+    elif armature is not None and armature.restitution > 0:
+        key, why = "armature.restitution", ("a moving armature that bounces off the seat (the end current's "
+                                            "bound holds while the armature closes or rests)")
+    elif armature is not None and hold.fast_fraction > 0:
+        key, why = "hold.fast_fraction", "a moving armature and a full bridge's mixed-decay hold together"
+    elif armature is not None and duty is not None:
+        key, why = "duty", "a moving armature and an on/off cycle ([duty]) together"
     elif pull_in.compensate:
         key, why = "pull_in.compensate", ("a supply-compensated peak (the boosted peak runs from the boost, "
                                           "not the main supply, and ends at its threshold: nothing to compensate)")
@@ -1526,9 +1539,10 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "high-side switch or a "
                          "full bridge, a "
                          "diode/zener/resistor freewheel (split decay too) or a clamp, a stiff "
-                         "main supply (or a drooping one: a linear coil on one switch), a "
-                         "voltage-mode or current-mode hold, a peak without compensate or settle_time, no "
-                         "[armature]")
+                         "main supply (or a drooping one: a linear coil on one switch, no [armature]), a "
+                         "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
+                         "with [armature]: no restitution, a voltage-mode open-loop hold without mixed "
+                         "decay, no [duty]")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,

@@ -76,7 +76,7 @@ REFUSING_BOARDS = ("bridge-m32-fast",)
 #: sized for its board's ADC and tick (its 1.1 A threshold reads 2731 codes there); on
 #: the high-side and bridge boards it designs with a higher-rated switch
 #: (tests/test_boost_high_side.py, tests/test_boost_bridge.py).
-BOARD_ONLY_EXAMPLES = {"fuel-valve-boost-12v": "lab-m32-zener"}
+BOARD_ONLY_EXAMPLES = {"fuel-valve-boost-12v": "lab-m32-zener", "fast-valve-boost-armature-12v": "lab-m32-zener"}
 
 
 def loads(example: Path, board: str) -> bool:

@@ -59,6 +59,7 @@ def test_bundled_examples_a_bridge_refuses():
     refused = {(e.stem, b) for e in EXAMPLES.glob("*.toml") for b in REFUSING_BOARDS if not loads(e, b)}
     assert refused == {("demo-valve", "bridge-m32-fast"), ("wash-valve-split-24v", "bridge-m32-fast"),
                        ("fuel-valve-boost-12v", "bridge-m32-fast"),   # made for its own board
+                       ("fast-valve-boost-armature-12v", "bridge-m32-fast"),   # likewise
                        ("dosing-valve-closed-loop", "bridge-m32-fast")}   # its Zener
 
 

@@ -275,6 +275,9 @@ class FirmwareDevice(LineOutput):
             raise ValueError("firmware in the loop does not run a moving [armature] with an eddy-current "
                              "term on a drooping bus (supply.source_resistance) yet: emulate it without "
                              "--firmware (the model's device)")
+        if d.armature is not None and d.supply.boosted:
+            raise ValueError("firmware in the loop does not run a moving [armature] on a boosted peak "
+                             "(supply.boost) yet: emulate it without --firmware (the model's device)")
 
     def _pull_in_flight(self, faulty, design, l_scale):
         """With an armature (not stuck): ``(time, current)`` of the pull-in with the switch

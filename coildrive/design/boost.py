@@ -95,10 +95,15 @@ def firmware_peak(design, supply: float, coil_temp: float, r_factor: float = 1.0
                   l_factor: float = 1.0) -> float:
     """The boosted peak the firmware runs at one point (s): until a nominal sense chain
     reads the threshold code, from the boost at its nominal voltage and capacitance, or the
-    time-out if sooner."""
+    time-out if sooner (a moving armature: its run, :mod:`coildrive.design.boost_armature`)."""
     drive = design.drive
     s = drive.supply
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
+    if drive.armature is not None:   # the moving armature's run from the boost
+        from ..model.armature import params_from_loop
+        from .boost_armature import nominal_trip_time
+        t = nominal_trip_time(drive, params_from_loop(drive.armature, lp, l_factor), nominal_trip(drive))
+        return min(t, design.pull_in.peak_time_s or 0.0)
     b = at_boost(drive, s.boost, s.boost_capacitance, lp.r_on, lp.inductance)
     t = float(model.of(b).threshold_time(nominal_trip(drive), b, sensed=True))
     return min(t, design.pull_in.peak_time_s or 0.0)
@@ -218,7 +223,8 @@ def boosted_points(drive: Drive, res):
     if not drive.supply.boosted:
         return res
     lp, rel = res.loop, _release_loop(res)
-    i_end = end_current(drive, lp)
+    runs = None if res.armature is None else res.armature.boost
+    i_end = end_current(drive, lp) if runs is None else runs.end_current.reshape(np.shape(res.supply))
     interrupt = np.maximum(i_end, res.hold.i_max)
     v_sw = rel.switch_voltage(drive, interrupt)
     v_boost = _turn_off_voltage(drive, rel, drive.supply.boost * (1.0 + drive.supply.boost_tolerance), i_end)
@@ -276,6 +282,20 @@ def boost_result(drive: Drive, grid: CornerGrid, res, rate: float) -> BoostResul
     i_m_end, v_end = m.state(t_end, fast)
     i_end = m.terminal(i_m_end, v_end, fast)
     energy = np.maximum(m.energy_drawn(t_end, fast), m.energy_drawn(t_low, slow))
+    runs = None if res.armature is None else res.armature.boost
+    if runs is not None:   # a moving armature: its runs from the boost (design/boost_armature.py)
+        t_slow = runs.long_time
+        finite = np.isfinite(t_slow)
+        reached = bool(np.all(finite))
+        k_slow = int(np.argmax(t_slow) if reached else np.argmax(~finite))
+        t_fast = runs.fast_time
+        k_fast = int(np.argmin(t_fast))
+        v_low = np.where(finite, runs.low_boost, np.nan)
+        headroom = np.where(finite, v_low - np.asarray(res.supply, float), -np.inf)
+        k_low = int(np.argmin(headroom))
+        t_end = t_slow
+        i_end, v_end = runs.end_current, runs.end_boost
+        energy = np.where(np.isfinite(runs.energy), runs.energy, 0.0)
     k_e, k_i = int(np.argmax(energy)), int(np.argmax(i_end))
     v_top = s.boost * (1.0 + s.boost_tolerance)
     rel = _release_loop(res)
@@ -286,7 +306,9 @@ def boost_result(drive: Drive, grid: CornerGrid, res, rate: float) -> BoostResul
     recharge = interval = None
     if s.boost_power > 0:
         recharge = float(model.recharge_time(energy[k_e], s.boost_power))
-        interval = float(max(np.max(t_end), np.max(t_low))) + recharge
+        interval = float(max(np.max(t_end), np.max(t_low) if runs is None else 0.0)) + recharge
+        if runs is not None and not reached:   # (no longest peak where the threshold never comes)
+            interval = None
     cap = s.boost_capacitance
     return BoostResult(
         boost_v=s.boost, boost_min_v=s.boost * (1.0 - s.boost_tolerance), boost_max_v=v_top,

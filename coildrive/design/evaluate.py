@@ -132,11 +132,14 @@ class ArmatureFigures:
     hold_current: np.ndarray
     hold_lift: np.ndarray
     release_from: np.ndarray
+    #: A boosted peak's runs (:class:`~coildrive.design.boost_armature.BoostRuns`; their
+    #: ``slow`` is ``pull_in``), else ``None``.
+    boost: object = None
 
 
 def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak_time,
                       reuse: "ArmatureFigures | None" = None,
-                      lp_rel: Loop | None = None) -> ArmatureFigures:
+                      lp_rel: Loop | None = None, duty=None) -> ArmatureFigures:
     """The armature runs at the points: pull-in and hold on the hold's loop ``lp``, the
     release on ``lp_rel`` (the fast path of split decay; ``None`` or ``lp``: the same
     path), with a late bypass decaying through ``lp`` first (:func:`late_release`).
@@ -144,7 +147,9 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
     On a drooping bus (``supply.source_resistance``) the pull-in runs on it (the bulk
     capacitor a state of the run); the hold and the release on the stiff bus, as for the
     still coil (the hold's droop is reported apart; the freewheel path draws nothing from
-    the bus, a clamp's release on the undrooped bus is the safe side)."""
+    the bus, a clamp's release on the undrooped bus is the safe side). A boosted peak
+    (``supply.boost``): the pull-in is the boost's, then the hold's at ``duty``
+    (:mod:`coildrive.design.boost_armature`), whatever ``peak_time``."""
     import dataclasses
 
     from ..model.armature import hold_force_current, params_from_loop
@@ -164,8 +169,21 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
         p_rel = params_from_loop(drive.armature, flat_rel, np.ravel(np.broadcast_to(l_factor, shape)), drive.coil.eddy_resistance)
     lag = max(-drive.freewheel.bypass_lead, 0.0) if p_rel is not p else 0.0
     want = np.ravel(np.broadcast_to(peak_time, shape))
-    pin = rel = None
-    if reuse is not None and p_pull.same_points(reuse.params):
+    pin = rel = boosted = None
+    if s.boosted:
+        duty_pts = np.ravel(np.broadcast_to(np.asarray(duty, float), shape))
+        if (reuse is not None and reuse.boost is not None and p_pull.same_points(reuse.params)
+                and np.array_equal(duty_pts, reuse.boost.duty)
+                and np.array_equal(np.ravel(ss.i_max), reuse.release_from)):
+            boosted, rel = reuse.boost, reuse.release
+        else:
+            from .boost import threshold
+            from .boost_armature import runs
+            i_th, _, i_trip = threshold(drive)
+            boosted = runs(drive, p_pull, duty_pts, np.ravel(np.broadcast_to(ss.period, shape)),
+                           np.ravel(ss.i_max), (i_th, i_trip))
+        pin = boosted.slow
+    elif reuse is not None and p_pull.same_points(reuse.params):
         # Same points and coil temperatures: the runs do not depend on the peak length.
         i_peak = peak_current_closed_form(p_pull, reuse.pull_in, want)
         if i_peak is not None and np.array_equal(np.ravel(ss.i_max), reuse.release_from):
@@ -173,6 +191,7 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
             rel = reuse.release
     if pin is None:
         pin = pull_in(p_pull, peak_time=want)
+    if rel is None:
         rel = (late_release(p, p_rel, np.ravel(ss.i_max), lag) if lag > 0 else
                release(p_rel, np.ravel(ss.i_max)))
     through, gap = p.stroke_current()
@@ -182,7 +201,7 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
     return ArmatureFigures(params=p_pull, pull_in=pin, release=rel, start_current=p.start_current,
                            stay_current=p.stay_current, stroke_current=np.atleast_1d(through),
                            stroke_gap=np.atleast_1d(gap), hold_current=held, hold_lift=lift,
-                           release_from=np.ravel(ss.i_max).copy())
+                           release_from=np.ravel(ss.i_max).copy(), boost=boosted)
 
 
 def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
@@ -233,7 +252,7 @@ def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
     if drive.armature is not None and mechanics:
         arm, t_pull, i_peak, t_drop, t_zero, energy, i_fast = moving_armature(
             drive, lp, lp_rel, l_factor, ss, peak_time, None if reuse is None else reuse.armature,
-            np.shape(supply), i_fast)
+            np.shape(supply), i_fast, duty)
     interrupt, v_sw = switch_voltage_peak(drive, lp, lp_rel, i_peak, ss.i_max, i_fast)
     return PointResults(supply=supply, ambient=ambient, coil_temp=temp, r_factor=r_factor,
                         l_factor=l_factor, loop=lp, pull_in_time=t_pull, peak_end_current=i_peak,
@@ -243,15 +262,16 @@ def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
 
 
 def moving_armature(drive: Drive, lp: Loop, lp_rel: Loop, l_factor, ss: PwmSteadyState, peak_time,
-                    reuse: "ArmatureFigures | None", shape: tuple, i_fast):
+                    reuse: "ArmatureFigures | None", shape: tuple, i_fast, duty=None):
     """The figures an ``[armature]`` decides at the points (arrays of ``shape``), for any
     hold whose steady state ``ss`` is a two-segment cycle on the seated coil (the PWM
     hold, a current-mode hold's switching cycle): ``(ArmatureFigures, pull-in time s
     (the seat), current at the end of the peak A, release time s (back on the open stop),
     time to zero current s, freewheel energy J, current when the release path takes over
     A: ``i_fast``, the still coil's, unless a late bypass's run says)``. The release starts
-    from the top of the ripple ``ss.i_max``."""
-    arm = _armature_figures(drive, lp, l_factor, ss, peak_time, reuse, lp_rel)
+    from the top of the ripple ``ss.i_max``; ``duty``: the PWM hold's, for a boosted peak's
+    hold carrying the armature on (:func:`_armature_figures`)."""
+    arm = _armature_figures(drive, lp, l_factor, ss, peak_time, reuse, lp_rel, duty)
     t_pull = arm.pull_in.seat_time.reshape(shape)
     i_inf = lp.v_on / lp.r_on
     i_peak = arm.pull_in.peak_end_current.reshape(shape)

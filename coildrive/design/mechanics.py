@@ -39,6 +39,11 @@ def armature_result(drive: Drive, grid: CornerGrid, res: PointResults) -> Armatu
     basis = ("RMS current (the ripple never drops below the stay current)" if np.all(lift_ok) else
              "RMS current where the mass averages the ripple, else the ripple bottom")
     dip = pin.dip_current
+    boosted = {}
+    if a.boost is not None:   # a boosted peak: where the armature seats, and its window
+        from ..model.armature_boost import seated_in_peak
+        boosted = dict(seated_in_peak_corners=int(np.sum(seated_in_peak(pin))),
+                       seat_window_s=float(a.boost.window))
     return ArmatureResult(
         inductance_open_h=arm.inductance_open, inductance_closed_h=arm.inductance_closed,
         stroke_m=arm.stroke, equivalent_gap_m=g0,
@@ -61,7 +66,7 @@ def armature_result(drive: Drive, grid: CornerGrid, res: PointResults) -> Armatu
         hottest_low_supply_corner=grid.label(k_hl), hottest_low_supply_margin=float(ratio[k_hl]),
         hold_lift_max_m=float(np.max(a.hold_lift)),
         seated_corners=int(np.sum(seated)), opened_corners=int(np.sum(rel.status == 0)),
-        corners=len(grid),
+        corners=len(grid), **boosted,
     )
 
 
@@ -84,10 +89,19 @@ def armature_checks(drive: Drive, grid: CornerGrid, res: PointResults, ar: Armat
 
     # It seats at every corner.
     bad = np.flatnonzero(pin.status != 0)
+    where_seated = ""
+    if ar.seated_in_peak_corners is not None:
+        n_peak = ar.seated_in_peak_corners
+        where_seated = (" within the boosted peak (before the threshold)" if n_peak == len(grid) else
+                        f"; within the boosted peak at {n_peak} of {len(grid)} corners, in the hold after "
+                        f"the threshold at the rest (window {ar.seat_window_s * 1e3:.4g} ms: "
+                        "pull_in.margin x the longest boosted peak)")
     if bad.size == 0:
         add(Check("armature_seats", True,
-                  f"seated at every corner, latest {ar.seat_time_s * 1e3:.4g} ms ({ar.seat_corner}); "
-                  f"current dip {ar.dip_current_a:.4g} A at the seat moment"))
+                  f"seated at every corner{where_seated if ar.seated_in_peak_corners == len(grid) else ''}, "
+                  f"latest {ar.seat_time_s * 1e3:.4g} ms ({ar.seat_corner}); "
+                  f"current dip {ar.dip_current_a:.4g} A at the seat moment"
+                  + (where_seated if ar.seated_in_peak_corners not in (None, len(grid)) else "")))
     else:
         k = int(bad[0])
         where = f"{bad.size} of {len(grid)} corners, e.g. {grid.label(k)}"
@@ -105,6 +119,18 @@ def armature_checks(drive: Drive, grid: CornerGrid, res: PointResults, ar: Armat
                    f"{a.stroke_current[k]:.4g} A at gap {_mm(a.stroke_gap[k])} but the coil "
                    f"carries at most {i_inf[k]:.4g} A")
             fix = " — the spring rate or the load keeps it from seating: lower them or raise the current"
+        elif a.boost is not None and not np.isfinite(pin.trip_time[k]):
+            why = ("the boost at its lowest never drives the moving armature's coil to the threshold "
+                   "there (see boost_threshold): no boosted peak to pull it in")
+            fix = " — a larger boost capacitance or a higher boost voltage"
+        elif a.boost is not None:
+            why = (f"not seated within {a.boost.window * 1e3:.4g} ms of switch-on (pull_in.margin x the "
+                   f"longest boosted peak; gap {_mm(pin.stall_gap[k])} then): the threshold ends the "
+                   f"boost after {pin.trip_time[k] * 1e3:.4g} ms with the armature "
+                   + ("still open" if pin.trip_state[1, k] >= arm.stroke else "in flight")
+                   + ", and the hold does not carry it onto the seat in time")
+            fix = (" — a higher threshold (pull_in.current_margin: a longer push from the boost), a "
+                   "higher hold current, or a lighter spring")
         else:
             why = (f"not seated within {pin.bound[k] * 1e3:.4g} ms (gap {_mm(pin.stall_gap[k])} "
                    "at the end): the armature moves too slowly (mass, damping)")

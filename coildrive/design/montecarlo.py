@@ -21,6 +21,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..config import Drive
+from ..errors import InputError
 from .boost import sampled_pull_in
 from .bridge_bus import release_time
 from .evaluate import evaluate
@@ -60,6 +61,15 @@ def _figures(drive: Drive, res, peak_time) -> tuple:
             release_time(drive, res, peak_time))
 
 
+def refuse_unsampled(drive: Drive) -> None:
+    """Raise the one-line refusal (``--samples``) for a drive the Monte Carlo does not cover:
+    a boosted peak with a moving armature (each sample would need its own boost run and
+    hold flight)."""
+    if drive.armature is not None and drive.supply.boosted:
+        raise InputError("--samples", "", "the Monte Carlo does not cover a boosted peak with a moving "
+                         "armature (each sample's boost run and hold flight): expected --samples left out")
+
+
 def monte_carlo(drive: Drive, duty: float, frequency: float, peak_time: float, samples: int,
                 seed: int = 1, chunk: int | None = CHUNK) -> dict:
     """Evaluate ``samples`` random operating points; return percentiles and failure counts.
@@ -71,6 +81,7 @@ def monte_carlo(drive: Drive, duty: float, frequency: float, peak_time: float, s
     ``peak_time`` may be functions of the samples' supply (V, an array) giving each
     sample's value: the hold and peak the firmware runs at that supply (a supply table).
     """
+    refuse_unsampled(drive)
     rng = np.random.default_rng(seed)
     c = drive.coil
     supply = rng.uniform(drive.supply.min, drive.supply.max, samples)

@@ -70,11 +70,21 @@ def force_times(drive: Drive, res: PointResults) -> tuple[np.ndarray, float]:
     """Time (s) from switch-on to ``current_margin`` x the pull-in current at each point
     (``inf`` where never reached), with the armature open when there is one; and that
     current (A). On a drooping bus (``supply.source_resistance``) the rise is
-    :mod:`coildrive.design.supply`'s."""
+    :mod:`coildrive.design.supply`'s; a boosted peak with an armature: the armature's run
+    from the boost at its lowest (:mod:`coildrive.design.boost_armature`)."""
     lp = res.loop
     i_force = drive.pull_in.current_margin * drive.pull_in.current
+    boosted = _boost_runs(res)
+    if boosted is not None:   # the armature's run from the boost: the motion in the current
+        return boosted.slow.trip_time.reshape(np.shape(res.supply)), i_force
     ind = lp.inductance if drive.armature is None else open_inductance(drive, res.l_factor)
     return rise_time(drive, lp, i_force, ind), i_force
+
+
+def _boost_runs(res: PointResults):
+    """A boosted peak's armature runs at the points of ``res``
+    (:class:`~coildrive.design.boost_armature.BoostRuns`), else ``None``."""
+    return None if res.armature is None else res.armature.boost
 
 
 def requirement(drive: Drive, t_pull: np.ndarray, t_force: np.ndarray, margin: float | None = None,
@@ -110,7 +120,8 @@ def plan_peak(drive: Drive, grid: CornerGrid, first: PointResults, entry_results
     if drive.supply.boosted:
         # the peak ends at its threshold (the force current) at every point; the ticks are
         # the time-out: the worst corner's longest peak x margin (design/boost.py)
-        t_end = slowest_peak(drive, first.loop)
+        runs = _boost_runs(first)
+        t_end = slowest_peak(drive, first.loop) if runs is None else runs.long_time.reshape(np.shape(first.supply))
         ticks = by_time = _ticks(float(np.max(np.where(np.isnan(t_end), np.inf, t_end))) * drive.pull_in.margin,
                                  rate)
         by_force = None
@@ -128,6 +139,11 @@ def plan_peak(drive: Drive, grid: CornerGrid, first: PointResults, entry_results
         if drive.armature is not None and math.isfinite(float(i_inf[k])) and i_inf[k] > drive.pull_in.current:
             not_reached = (f"not reached: the armature does not seat at {grid.label(k_pull)} "
                            "(see the armature_seats check)")
+        if drive.supply.boosted and _boost_runs(first) is not None:
+            k = int(np.argmax(~np.isfinite(np.ravel(t_end))))
+            not_reached = (f"not reached: the boost at its lowest does not drive the moving armature's "
+                           f"coil to the highest trip current at {grid.label(k)} (the capacitor's droop "
+                           "and the motion's back-EMF; see the boost_threshold check)")
     governed = "" if ticks is None else ("force margin" if (by_force or 0) > (by_time or 0) else "time margin")
     if drive.supply.boosted and ticks is not None:
         governed = "time-out; ends at the current threshold"
@@ -147,8 +163,8 @@ def plan_peak(drive: Drive, grid: CornerGrid, first: PointResults, entry_results
         short = long_ = np.zeros(n)
     elif drive.supply.boosted:   # each point's peak ends at the threshold, at the latest when seen
         short, long_ = np.asarray(tf_all, float), np.asarray(t_end, float)
-        if drive.coil.eddy_resistance:   # the sense trips on the terminal current, ahead of the flux's
-            short = earliest_trip(drive, first.loop)
+        if drive.coil.eddy_resistance and drive.armature is None:   # the sense trips on the
+            short = earliest_trip(drive, first.loop)   # terminal current, ahead of the flux's
     elif table is not None:
         ent = np.asarray(table.peak_ticks)
         codes = np.asarray(table.adc_codes)
@@ -165,7 +181,14 @@ def plan_peak(drive: Drive, grid: CornerGrid, first: PointResults, entry_results
 
 def shortest_peak_current(drive: Drive, res: PointResults, short_time: np.ndarray) -> np.ndarray:
     """Current (A) at the end of the shortest real peak at each point (plain RL rise; with
-    an armature the open inductance, before it moves)."""
+    an armature the open inductance, before it moves; a boosted peak with an armature ends
+    at the threshold -- with an eddy term the magnetising current there)."""
     lp = res.loop
+    runs = _boost_runs(res)
+    if runs is not None:   # the armature's boosted peak ends at the threshold itself
+        if drive.coil.eddy_resistance:   # the sense trips on the terminal current: the flux's there
+            y = runs.slow.trip_state
+            return res.armature.params.current(y[0], y[1]).reshape(np.shape(res.supply))
+        return np.full(np.shape(res.supply), drive.pull_in.current_margin * drive.pull_in.current)
     ind = lp.inductance if drive.armature is None else open_inductance(drive, res.l_factor)
     return rise_current(drive, lp, short_time, ind)

@@ -327,8 +327,12 @@ def _armature_rows(d: Design, rows: list) -> list:
     out = []
     for row in rows:
         if row[0].startswith("pull-in time"):
+            where = ""
+            if a.seated_in_peak_corners is not None:   # a boosted peak: in it, or in the hold after
+                where = (f"; within the boosted peak at {a.seated_in_peak_corners} of {a.corners} "
+                         f"corners, the rest in the hold; window {_ms(a.seat_window_s)}")
             out.append(("armature seated (worst)", _ms(a.seat_time_s),
-                        f"at {a.seat_corner}; earliest {_ms(a.seat_time_min_s)}"))
+                        f"at {a.seat_corner}; earliest {_ms(a.seat_time_min_s)}{where}"))
             out.append(("current dip (seat moment)", f"{a.dip_current_a:.4g} A at {_ms(a.dip_time_s)}",
                         f"worst corner; lowest dip {a.dip_current_min_a:.4g} A"))
         elif row[0].startswith("release time"):

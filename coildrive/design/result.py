@@ -245,6 +245,12 @@ class ArmatureResult:
     seated_corners: int
     opened_corners: int
     corners: int
+    #: A boosted peak (``supply.boost``): the corners whose armature rests on the seat by the
+    #: end of the peak (the current threshold; the rest seat in the hold), and the window it
+    #: must seat in (s from switch-on: ``pull_in.margin`` x the longest boosted peak); else
+    #: ``None``.
+    seated_in_peak_corners: int | None = None
+    seat_window_s: float | None = None
 
 
 @dataclass(frozen=True)

@@ -70,9 +70,14 @@ RUNNING, SEAT, OPEN, ZERO, BOUND = 0, 1, 2, 3, 4
 #: A flight's end where an armature held at its stop (``fly(held=...)``) reached the asked
 #: flux linkage (``flux_to``): the current that starts it off the stop.
 START = 5
+#: A flight's end where the coil's current rose to the asked current (``fly(current_to=...)``):
+#: a boosted peak's threshold, where the firmware ends the peak.
+TRIP = 6
 
 # Outcome codes (PullInBatch.status, ReleaseBatch.status)
 SEATED, NO_START, STALLED = 0, 1, 2
+#: A boosted pull-in (``pull_in(trip=...)``) that reached its threshold before the seat.
+TRIPPED = 3
 OPENED, NOT_OPEN = 0, 2
 
 

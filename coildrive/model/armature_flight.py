@@ -36,7 +36,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .armature import BOUND, OPEN, RUNNING, SEAT, START, ZERO, ArmatureParams
+from .armature import BOUND, OPEN, RUNNING, SEAT, START, TRIP, ZERO, ArmatureParams
 
 #: Hard cap on integrator steps per flight (never hang).
 MAX_STEPS = 20_000
@@ -174,6 +174,13 @@ class _Rhs:
             return self.terminal(i, y[5]), rate + self.tu * dy[5]
         return self.t0 + self.t1 * i, rate
 
+    def current_rate(self, y, dy):
+        """The coil's current A at states ``y`` and its rate A/s given their derivatives
+        ``dy`` (a linear coil: ``i = lambda (1 + beta x) / L_c``)."""
+        lam, x = y[0], y[1]
+        di_dl = (1.0 + self.beta * x) * self.inv_lc
+        return lam * di_dl, di_dl * dy[0] + lam * self.beta * self.inv_lc * dy[1]
+
     def terminal(self, i, u=None):
         """Terminal current A at magnetising current ``i`` A (and, on a drooping bus with
         an eddy term, bus ``u`` V), in this flight's switch state: the coil's current
@@ -308,7 +315,7 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
         track: np.ndarray | None = None, peak: np.ndarray | None = None,
         max_steps: int = MAX_STEPS, stiff: bool = False, low: np.ndarray | None = None,
         low_until: np.ndarray | None = None, held: np.ndarray | None = None,
-        flux_to: np.ndarray | None = None) -> Flight:
+        flux_to: np.ndarray | None = None, current_to: np.ndarray | None = None) -> Flight:
     """Integrate the free armature of every ``active`` point from ``t`` until a stop, the
     current reaching zero (switch off), or ``t_end``.
 
@@ -335,6 +342,9 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
     held, flux_to : where ``held``, the armature rests at its stop (``x`` and ``v``
     frozen, no stop events): a resting stretch of a coil whose curves have no closed form
     on the drooping bus; it ends (code START) where the flux linkage rises to ``flux_to`` Wb
+    current_to : A per point (``inf``: none): a free flight ends (code TRIP) where the
+    coil's current (with an eddy term the terminal current) rises to it -- a boosted peak's
+    threshold (a linear coil)
 
     A batch of one point goes through :func:`fly_point` (Python floats: numpy's per-call
     overhead on 1-element arrays would dominate; same algorithm and results; the coil's
@@ -344,7 +354,8 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
     accepted steps only.
     """
     if (t.size == 1 and SINGLE_POINT_SCALAR and (p.curves is None or not stiff)
-            and p.eddy is None and not p.droops and held is None and flux_to is None):
+            and p.eddy is None and not p.droops and held is None and flux_to is None
+            and current_to is None):
         return _fly_single(p, t, y, t_end, active, on, live, rtol, record, query, query_y,
                            track, peak, max_steps, stiff)
     n = t.size
@@ -356,6 +367,7 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
     rhs = _Rhs(p, on, live, held)
     free = np.ones(n, bool) if held is None else ~held
     target = np.full(n, np.inf) if flux_to is None else np.broadcast_to(flux_to, (n,))
+    trip_at = None if current_to is None else np.broadcast_to(np.asarray(current_to, float), (n,))
     rows = [0, 1, 2]                 # the rows under error control
     scale = rtol * p.reference_scales()
     if p.droops:
@@ -390,13 +402,19 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
         seat = ok & free & (y_new[1] < 0.0)
         opn = ok & free & (y_new[1] > p.stroke)
         start = ok & ~free & (y_new[0] >= target)
+        trip = np.zeros(n, bool)
+        if trip_at is not None:   # (with an eddy term the terminal current: what the sense sees)
+            rate = rhs.current_rate if rhs.t1 is None else rhs.terminal_rate
+            c_old, dc_old = rate(y, k1)
+            c_new, dc_new = rate(y_new, k7)
+            trip = ok & free & (c_new >= trip_at)
         if rhs.t1 is None:
             zero = ok & ~on & live & (y_new[0] < 0.0)
         else:   # an eddy term: the freewheel stops where the terminal current reaches zero
             g_old, dg_old = rhs.terminal_rate(y, k1)
             g_new, dg_new = rhs.terminal_rate(y_new, k7)
             zero = ok & ~on & live & (g_new < 0.0)
-        hit = seat | opn | zero | start
+        hit = seat | opn | zero | start | trip
         theta = np.ones(n)
         kind = np.zeros(n, int)
         y_full = y_new
@@ -406,7 +424,9 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
                     (opn, p.stroke - y[1], p.stroke - y_new[1], -k1[1], -k7[1], OPEN),
                     ((zero, y[0], y_new[0], k1[0], k7[0], ZERO) if rhs.t1 is None else
                      (zero, g_old, g_new, dg_old, dg_new, ZERO)),
-                    (start, target - y[0], target - y_new[0], -k1[0], -k7[0], START)):
+                    (start, target - y[0], target - y_new[0], -k1[0], -k7[0], START),
+                    (trip, *((trip_at - c_old, trip_at - c_new, -dc_old, -dc_new) if trip_at is not None
+                             else (y[0],) * 4), TRIP)):
                 if mask.any():
                     th = np.where(mask, _root(g0, g1, d0, d1, h), 1.0)
                     first = mask & (th < theta)

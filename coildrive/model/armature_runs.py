@@ -15,7 +15,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .armature import (BOUND, BOUND_FACTOR, MAX_BOUNCES, NO_START, NOT_OPEN, OPEN, OPENED, REST_FRACTION, SEAT,
-                       SEATED, STALLED, START, ZERO, ArmatureParams, time_bound)
+                       SEATED, STALLED, START, TRIP, TRIPPED, ZERO, ArmatureParams, time_bound)
 from .armature_flight import fly_mixed, is_stiff
 from .rl import decay_current, decay_integrals, decay_time, rise_current, rise_integrals, rise_time
 from . import supply as bus_model
@@ -71,13 +71,30 @@ class PullInBatch:
     seat_bus: np.ndarray | None = None
     seat_charge: np.ndarray | None = None
     seat_square: np.ndarray | None = None
+    #: With a ``trip`` current (a boosted peak's threshold): when the coil's current first
+    #: reaches it (s; ``inf``: never within the run) and the state then (rows of the run:
+    #: lambda, x, v, q, sq and the capacitor's u on a drooping bus; NaN where never).
+    #: ``status`` is TRIPPED where that came before the seat (the armature open or in
+    #: flight: the run ends there), else as without a trip (a seated point's trip is the
+    #: seated coil's closed-form rise from the seat).
+    trip_time: np.ndarray | None = None
+    trip_state: np.ndarray | None = None
 
     @property
     def dip_depth(self) -> np.ndarray:
         return np.where(np.isfinite(self.dip_current), np.maximum(self.hump_current - self.dip_current, 0.0), np.nan)
 
 
-def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: int = 4 * MAX_BOUNCES) -> PullInBatch:
+def bus_time_scale(p: ArmatureParams) -> np.ndarray:
+    """The drooping bus's own time scale (s): ``R_s C``; a capacitor with no source
+    (``R_s = inf``, a boost capacitor) the loop's ``R_on C + sqrt(L_c C)``."""
+    none = np.isinf(p.source_resistance)
+    return np.where(none, p.r_on * p.capacitance + np.sqrt(p.l_closed * p.capacitance),
+                    np.where(none, 0.0, p.source_resistance) * p.capacitance)
+
+
+def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: int = 4 * MAX_BOUNCES,
+            trip=None) -> PullInBatch:
     """Switch on at t = 0 from rest at the open stop and follow the armature until seated.
 
     The rise before motion is closed form with the open inductance (the armature rests
@@ -93,8 +110,19 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     closed form there: its resting stretches (the rise before the motion, a wait on the
     open stop, the seat until ``peak_time``) are integrated by the same batched
     integrator with the armature held at its stop (``fly(held=...)``).
+
+    ``trip`` (A, per point; a linear coil): a boosted peak's threshold on the coil's
+    current (with an eddy term the terminal current, what the sense sees) -- the run ends
+    where it first reaches it (before the
+    motion: the open coil's closed form; in flight: the integrator's ``current_to``
+    event) with status TRIPPED; where the armature seats first, the trip is the seated
+    coil's closed-form rise from the seat (``trip_time``, ``trip_state``). ``p`` is then
+    the peak's source: the boost (``v_on``; ``r_on`` with the boost path; a capacitor:
+    ``capacitance`` with ``source_resistance = inf``, no source behind it).
     """
     n = len(p)
+    if trip is not None and p.curves is not None:
+        raise ValueError("pull_in's trip is on a linear coil's current (no curves)")
     droop = p.droops
     curved = droop and p.curves is not None
     i_start = p.start_current
@@ -141,9 +169,15 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
         f_inf = p.closing_force(p.flux_open(i_inf)) - p.opening_force(p.stroke)
     bound = np.where(moves, time_bound(t_start, p.l_closed, p.r_on, p.mass, p.stroke, p.damping, f_inf), np.inf)
     if droop:   # the bus's own time scale too
-        bound = bound + BOUND_FACTOR * p.source_resistance * p.capacitance
+        bound = bound + BOUND_FACTOR * bus_time_scale(p)
     status = np.where(moves, -1, NO_START)
     nan = np.full(n, np.nan)
+    trip_time = trip_y = None
+    if trip is not None:
+        trip = np.broadcast_to(np.asarray(trip, float), (n,))
+        trip_time, trip_y = _early_trip(p, trip, np.where(moves, t_start, np.inf))
+        early = np.isfinite(trip_time)
+        status = np.where(early, TRIPPED, status)
     impact_time, impact_speed, dip_current = nan.copy(), nan.copy(), nan.copy()
     seat_time = np.full(n, np.inf)
     seat_current = nan.copy()
@@ -166,7 +200,7 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
         low = np.stack([np.where(early, v_early, u_start), np.where(early, t_early, t_start)])
     seat_bus = np.full(n, np.nan) if droop else None
     seat_y = np.full_like(y, np.nan) if curved else None
-    active = moves.copy()
+    active = moves.copy() if trip is None else moves & (status != TRIPPED)
     on = np.ones(n, bool)
     live = np.ones(n, bool)
     if not curved:
@@ -175,10 +209,17 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
         if not active.any():
             break
         fl = fly_mixed(p, t, y, bound, active, on, live, stiff, rtol, query=want, query_y=query_y,
-                 track=active & np.isnan(impact_time), peak=peak, low=low, low_until=low_until)
+                 track=active & np.isnan(impact_time), peak=peak, low=low, low_until=low_until,
+                 current_to=trip)
         steps += fl.steps
         t = np.where(active, fl.t, t)
         y = np.where(active, fl.y, y)
+        if trip is not None:   # the threshold before the seat: the peak ends here
+            hit = active & (fl.end == TRIP)
+            status = np.where(hit, TRIPPED, status)
+            trip_time = np.where(hit, t, trip_time)
+            trip_y = np.where(hit, y, trip_y)
+            active = active & ~hit
         lam, x, v = y[0], y[1], y[2]
         seat = active & (fl.end == SEAT)
         first = seat & np.isnan(impact_time)
@@ -258,6 +299,9 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     status = np.where(status < 0, STALLED, status)
     stall_gap = np.where((status == STALLED) & np.isnan(stall_gap), y[1], stall_gap)
     seated = status == SEATED
+    if trip is not None:
+        trip_time, trip_y = _seated_trip(p, trip, seated, seat_time, seat_current, seat_bus, seat_q,
+                                         seat_s, trip_time, trip_y)
     dip_time = np.where(seated, impact_time, np.nan)
     dip_current = np.where(seated, dip_current, np.nan)
     hump = np.where(seated, np.maximum(peak[0], dip_current), np.nan)
@@ -286,7 +330,64 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
                        peak_end_current=peak_end, bound=bound, steps=steps,
                        lowest_bus=None if low is None else low[0],
                        lowest_bus_time=None if low is None else low[1], seat_bus=seat_bus,
-                       seat_charge=seat_q, seat_square=seat_s)
+                       seat_charge=seat_q, seat_square=seat_s, trip_time=trip_time, trip_state=trip_y)
+
+
+def _early_trip(p: ArmatureParams, trip, t_start):
+    """``(s, state)``: where the open coil's closed-form rise reaches ``trip`` A before the
+    motion's start ``t_start`` s, when and the state then (rows of :func:`pull_in`'s run);
+    ``inf`` and NaN elsewhere."""
+    n = len(p)
+    t, y = _rise_to(p, True, trip, np.zeros(n), p.v_on.astype(float))
+    early = np.isfinite(t) & (t <= t_start)
+    return np.where(early, t, np.inf), np.where(early, y, np.nan)
+
+
+def _seated_trip(p: ArmatureParams, trip, seated, seat_time, seat_current, seat_bus, seat_q, seat_s,
+                 trip_time, trip_y):
+    """:func:`_early_trip`'s figures completed where the armature seated before the trip:
+    the seated coil's closed-form rise from the seat's state to ``trip`` A (``inf`` where it
+    never gets there)."""
+    if not seated.any():
+        return trip_time, trip_y
+    i0 = np.where(seated, seat_current, 0.0)
+    u0 = np.where(seated, seat_bus, p.v_on) if p.droops else p.v_on.astype(float)
+    dt, y = _rise_to(p, False, trip, i0, u0)
+    ok = seated & np.isfinite(dt)
+    y[3] = y[3] + np.where(ok, seat_q, 0.0)
+    y[4] = y[4] + np.where(ok, seat_s, 0.0)
+    return np.where(ok, seat_time + dt, trip_time), np.where(ok, y, trip_y)
+
+
+def _rise_to(p: ArmatureParams, open_: bool, trip, i0, u0):
+    """``(s, state)``: the armature resting on the open stop (``open_``) or the seat, the
+    switch on from the magnetising current ``i0`` A (and on a drooping bus the capacitor at
+    ``u0`` V): when the sensed current (with an eddy term the terminal current) first
+    reaches ``trip`` A (``inf`` where never) and the run's state then (``q``, ``sq`` from
+    this start; 0 rows where never). Closed form: :mod:`coildrive.model.supply` on a
+    drooping bus (or a boost capacitor), :mod:`coildrive.model.rl` (an eddy term's
+    Thevenin pair) on a stiff one."""
+    n = len(p)
+    coil = p.coil_open if open_ else p.coil_closed
+    if p.droops:
+        b = p.bus(open_)
+        t = bus_model.time_to(trip, b, i0, u0, np.full(n, np.inf), sensed=p.eddy is not None)
+        tt = np.where(np.isfinite(t), t, 0.0)
+        q, s = bus_model.integrals_from(tt, b, i0, u0)
+        i_m, u = bus_model.state_from(tt, b, i0, u0)
+        extra = [u]
+    else:
+        target = trip
+        if p.eddy is not None:   # the terminal current (V + R_e i_m)/(R + R_e): its i_m
+            target = np.maximum(((p.r_on + p.eddy) * trip - p.v_on) / p.eddy, i0)
+        t = rise_time(np.maximum(target, i0), i0, p.v_on, p.r_on, coil)
+        tt = np.where(np.isfinite(t), t, 0.0)
+        q, s = rise_integrals(tt, i0, p.v_on, p.r_on, coil)
+        i_m = rise_current(tt, i0, p.v_on, p.r_on, coil)
+        extra = []
+    flux = p.flux_open(i_m) if open_ else p.flux_closed(i_m)
+    x = p.stroke.astype(float) if open_ else np.zeros(n)
+    return t, np.stack([flux, x, np.zeros(n), q, s] + extra)
 
 
 def _held_rise(p: ArmatureParams, i_inf, stiff, rtol, want, query_y, low, low_until):

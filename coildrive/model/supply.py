@@ -61,6 +61,7 @@ All functions broadcast over numpy arrays; units are A, V, ohm, H, F, s.
 
 from __future__ import annotations
 
+import functools
 from dataclasses import dataclass
 
 import numpy as np
@@ -107,12 +108,18 @@ class Bus:
 
 def bus(v_s, r_s, c, r, l, r_e=None) -> Bus:
     """The circuit of the module docstring at each point (``r_s`` > 0, ``c`` > 0), with an
-    eddy resistance ``r_e`` ohm across the magnetising branch ``l`` H (``None``: none)."""
+    eddy resistance ``r_e`` ohm across the magnetising branch ``l`` H (``None``: none).
+    ``r_s = inf`` is a charged capacitor with no source behind it (a boost capacitor:
+    ``i_ss = v_ss = 0``, the moving armature's boosted peak,
+    :func:`coildrive.model.armature_runs.pull_in` with ``trip``)."""
     g_e = 0.0 if r_e is None else 1.0 / np.asarray(r_e, float)
     v_s, r_s, c, r, l, g_e = np.broadcast_arrays(*(np.asarray(x, float) for x in (v_s, r_s, c, r, l, g_e)))
     l1, l2 = linear2.eigenvalues(*_matrix(r_s, c, r, l, g_e))
     i_ss = v_s / (r + r_s)
-    return Bus(v_s, r_s, c, r, l, l1, l2, i_ss, v_s - r_s * i_ss, g_e)
+    # r_s = inf: a charged capacitor with no source (a boost capacitor): it ends empty
+    none = np.isinf(r_s)
+    v_ss = np.where(none, 0.0, v_s - np.where(none, 0.0, r_s) * i_ss)
+    return Bus(v_s, r_s, c, r, l, l1, l2, i_ss, v_ss, g_e)
 
 
 def _matrix(r_s, c, r, l, g_e) -> tuple:
@@ -226,14 +233,18 @@ def state_from(t, b: Bus, i0, v0) -> tuple[np.ndarray, np.ndarray]:
     return b.i_ss + di, b.v_ss + dv
 
 
-def _slope_zeros(b: Bus, i0, v0, row: int) -> tuple[np.ndarray, np.ndarray]:
+def _slope_zeros(b: Bus, i0, v0, row) -> tuple[np.ndarray, np.ndarray]:
     """The first two zeros (s, ``inf`` where none) of ``d/dt`` of the state's ``row``
-    (0: current, 1: bus) from ``(i0, v0)``: the first from :func:`linear2.first_zero` on
+    (0: current, 1: bus; a pair of weights: that combination of the two, e.g. the terminal
+    current's) from ``(i0, v0)``: the first from :func:`linear2.first_zero` on
     ``e^{At} A d``; a complex pair's next ``pi/omega`` later (a real pair has one at most)."""
     a = b.matrix
     d = (np.asarray(i0, float) - b.i_ss, np.asarray(v0, float) - b.v_ss)
     ad = linear2.times(a, d)
     aad = linear2.times(a, ad)
+    if not isinstance(row, int):   # a weighted sum of the two rows
+        w0, w1 = row
+        ad, aad, row = (w0 * ad[0] + w1 * ad[1],), (w0 * aad[0] + w1 * aad[1],), 0
     with np.errstate(invalid="ignore", divide="ignore"):
         t1 = linear2.first_zero(ad[row], aad[row], b.l1, b.l2)
     t1 = np.where(np.isnan(t1), np.inf, t1)
@@ -260,29 +271,38 @@ def lowest_from(t_end, b: Bus, i0, v0) -> tuple[np.ndarray, np.ndarray]:
     return best_v, best_t
 
 
-def time_to(i_target, b: Bus, i0, v0, t_max) -> np.ndarray:
+def time_to(i_target, b: Bus, i0, v0, t_max, sensed: bool = False) -> np.ndarray:
     """Time (s) from ``(i0 A, v0 V)``, the switch on, to the coil current's first upward
     crossing of ``i_target`` A within ``t_max`` s (``inf`` where none): on the current's
     first rising stretch (from 0, or from the first zero of ``di/dt`` when it starts
     falling, to the next zero of ``di/dt``; real eigenvalues: for ever after the last),
-    later maxima being lower (damped); a bisection of the closed form there."""
+    later maxima being lower (damped); a bisection of the closed form there. ``sensed``:
+    of the terminal current (:func:`terminal`, a weighted sum of the two states: the same
+    argument holds for it) -- with an eddy term what the sense resistor sees."""
     target = np.broadcast_to(np.asarray(i_target, float), b.i_ss.shape)
     t_max = np.broadcast_to(np.asarray(t_max, float), b.i_ss.shape)
     i0 = np.broadcast_to(np.asarray(i0, float), b.i_ss.shape)
-    t1, t2, slope0 = _slope_zeros(b, i0, v0, 0)
+    k = 1.0 / (1.0 + b.r * b.g_e)
+    row = (k, k * b.g_e) if sensed else 0
+
+    def value(t):
+        i, v = state_from(t, b, i0, v0)
+        return terminal(i, v, b) if sensed else i
+    t1, t2, slope0 = _slope_zeros(b, i0, v0, row)
     rising = slope0 > 0
     lo = np.where(rising, 0.0, t1)
     hi = np.minimum(np.where(rising, t1, t2), t_max)
     lo = np.where(np.isfinite(lo), lo, t_max)
     hi = np.where(np.isfinite(hi), hi, t_max)
-    reached = (state_from(hi, b, i0, v0)[0] >= target) & (lo <= hi)
+    reached = (value(hi) >= target) & (lo <= hi)
     a = lo.copy()
     c = hi.copy()
     for _ in range(BISECTION_STEPS):
         mid = 0.5 * (a + c)
-        up = state_from(mid, b, i0, v0)[0] >= target
+        up = value(mid) >= target
         a, c = np.where(up, a, mid), np.where(up, mid, c)
-    return np.where(i0 >= target, 0.0, np.where(reached, c, np.inf))
+    start = terminal(i0, v0, b) if sensed else i0
+    return np.where(start >= target, 0.0, np.where(reached, c, np.inf))
 
 
 def integrals_from(t, b: Bus, i0, v0, nodes: int = 64) -> tuple[np.ndarray, np.ndarray]:
@@ -299,12 +319,19 @@ def integrals_from(t, b: Bus, i0, v0, nodes: int = 64) -> tuple[np.ndarray, np.n
     det = a11 * a22 - a12 * a21
     charge = b.i_ss * t + (a22 * (i1 - i0) - a12 * (v1 - v0)) / det
     volts = b.v_ss * t + (a11 * (v1 - v0) - a21 * (i1 - i0)) / det   # int v dt, V*s
-    x, w = np.polynomial.legendre.leggauss(nodes)
+    x, w = _gauss(nodes)
     s = 0.5 * t[..., None] * (x + 1.0)
     wide = _expand(b)
     ii = terminal(*state_from(s, wide, i0[..., None], v0[..., None]), wide)
     return ((charge + b.g_e * volts) / (1.0 + b.r * b.g_e),
             0.5 * t * np.sum(w * ii * ii, axis=-1))
+
+
+@functools.lru_cache(maxsize=8)
+def _gauss(nodes: int) -> tuple[np.ndarray, np.ndarray]:
+    """Gauss-Legendre nodes and weights on [-1, 1] (numpy's ``leggauss``, computed once:
+    its eigenvalue solve costs more than the quadrature it serves)."""
+    return np.polynomial.legendre.leggauss(nodes)
 
 
 def _expand(b: Bus) -> Bus:

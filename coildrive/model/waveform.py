@@ -186,14 +186,15 @@ def actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float, d
 
 
 def boost_columns(drive: Drive, w: "Waveform", supply: float, peak_time: float, r_on: float,
-                  ind: float) -> "Waveform":
+                  ind: float, trace: np.ndarray | None = None) -> "Waveform":
     """``w`` with a boosted peak's columns (unchanged without a boost): the boost
-    capacitor's voltage (:func:`coildrive.model.boost.voltage_trace`) and, on a high-side
+    capacitor's voltage (:func:`coildrive.model.boost.voltage_trace`; ``trace``: given, V at
+    ``w.time`` -- a moving armature's run) and, on a high-side
     switch, the node fed from the boost rail in the peak of ``peak_time`` s; ``supply`` V
     the main supply, ``r_on`` ohm and ``ind`` H the on-loop."""
     if not drive.supply.boosted:
         return w
-    w = dataclasses.replace(w, boost_voltage=boost_model.voltage_trace(
+    w = dataclasses.replace(w, boost_voltage=trace if trace is not None else boost_model.voltage_trace(
         w.time, peak_time, nominal_boost(drive, r_on, ind), drive.supply.boost_power))
     if w.node_voltage is not None:   # a high-side switch: fed from the boost rail in the peak
         rail = np.where((w.time <= peak_time) & (w.switch_on == 1),
@@ -585,6 +586,9 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     s = drive.supply
     p_peak = params_from_loop(drive.armature, lp, l_factor, drive.coil.eddy_resistance,
                               bus=(s.source_resistance, s.capacitance)) if s.droops else p
+    if s.boosted:   # the peak from the boost (its capacitor a state with no source behind it)
+        from .armature_boost import boost_params
+        p_peak = boost_params(p, s.boost, s.boost_capacitance, s.boost_resistance)
     split = split_decay(drive)
     bridge = full_bridge(drive)   # the hold decays slowly, the release fast into the bus
     fast = p_rel = None
@@ -761,16 +765,37 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
         times = [t for t, nm in tr.log if nm == name and t >= t_off]
         if times:
             events[name] = times[-1] if name == "open" else times[0]
+    trace = None
+    if s.boosted:   # the run's capacitor in the peak, then its recharge: a boost_v column
+        trace = _boost_trace(drive, tr, peak_time)
+        tr.bus = None
     rail = supply if tr.bus is None else tr.bus   # a high-side switch's node: from the bus
-    return Waveform(tr.time, current, on, v_sw, sense, events, label, position=tr.position,
-                    velocity=tr.velocity, bypass_on=bypass, magnetising_current=tr.magnetising_current,
-                    bus_voltage=tr.bus,
-                    **(extra if bridge else node_columns(drive, rail, current, on, v_sw)))
+    w = Waveform(tr.time, current, on, v_sw, sense, events, label, position=tr.position,
+                 velocity=tr.velocity, bypass_on=bypass, magnetising_current=tr.magnetising_current,
+                 bus_voltage=tr.bus,
+                 **(extra if bridge else node_columns(drive, rail, current, on, v_sw)))
+    return boost_columns(drive, w, supply, peak_time, 0.0, 0.0, trace) if s.boosted else w
+
+
+def _boost_trace(drive: Drive, tr, peak_time: float) -> np.ndarray:
+    """The boost's voltage (V) at ``tr.time`` of a moving armature's actuation: the
+    capacitor's state in the run until the peak ends at ``peak_time`` s, then its recharge
+    at ``boost_power`` (:func:`coildrive.model.boost.recharge_voltage`); an ideal boost
+    (no capacitance) its voltage throughout."""
+    s = drive.supply
+    if tr.bus is None or not s.boost_capacitance > 0:
+        return np.full(tr.time.shape, s.boost)
+    k = int(np.searchsorted(tr.time, peak_time, side="right")) - 1
+    v_end = float(tr.bus[k])
+    after = boost_model.recharge_voltage(v_end, np.maximum(tr.time - peak_time, 0.0), s.boost_capacitance,
+                                         s.boost_power, s.boost)
+    return np.where(tr.time <= peak_time, tr.bus, after)
 
 
 def _joined(head, rest, v_bus: float):
-    """One trajectory of ``head`` (the peak on the drooping bus) and ``rest`` (on from its
-    end on the stiff bus at ``v_bus`` V): samples end to end, the moments of both."""
+    """One trajectory of ``head`` (the peak on the drooping bus, or from an ideal boost: no
+    bus) and ``rest`` (on from its end on the stiff bus at ``v_bus`` V): samples end to end,
+    the moments of both."""
     import dataclasses
 
     names = ["time", "flux", "position", "velocity", "switch_on", "charge", "square", "current"]
@@ -784,7 +809,7 @@ def _joined(head, rest, v_bus: float):
     return dataclasses.replace(
         rest, **cat, events={**rest.events, **head.events}, log=head.log + rest.log,
         impacts=head.impacts + rest.impacts,
-        bus=np.concatenate([head.bus, np.full(rest.time.size - first, v_bus)]))
+        bus=None if head.bus is None else np.concatenate([head.bus, np.full(rest.time.size - first, v_bus)]))
 
 
 def hold_samples(t_start: float, i0: float, v: float, r_on: float, r_off: float, v_off: float,

@@ -1,0 +1,122 @@
+"""The boosted peak with a moving armature (``[supply] boost`` and ``[armature]``): the runs
+over the points and the figures :mod:`coildrive.design.boost` takes from them in place of
+the still coil's closed form. Physics in :mod:`coildrive.model.armature_boost`.
+
+Four batched runs of the armature switched on from the boost, each ending where the coil's
+current first reaches a threshold (the motion's back-EMF, its dip at the seat, all in it;
+with an eddy term the terminal current, what the sense sees):
+
+* the pull-in (``slow``): the boost at its lowest until the threshold itself (the earliest
+  any sense chain trips: the shortest push from the boost), then the hold from the main
+  supply, the armature followed until it seats or ``pull_in.margin`` x the longest peak over
+  the points has passed (the envelope's: the time-out before its rounding up to whole
+  ticks) -- the window the design asks it to seat in;
+* the longest peak (``long_time``): the boost at its lowest until the highest trip current,
+  seen one conversion late -- its worst x ``pull_in.margin`` is the time-out; the boost
+  capacitor at its end is the droop check's;
+* the fastest peak: the boost at its highest until the threshold;
+* the most current: the boost at its highest until the highest trip current; over the one
+  conversion after it the current rises at most as the open coil's would from there on a
+  stiff boost at full charge (while the armature stands or closes its motional term only
+  holds the current back, and ``L(x) >= L_open``), so that bounds the end current and, with
+  the capacitor's state at the trip, the energy drawn.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+from ..config import Drive
+from ..model.armature import ArmatureParams
+from ..model.armature_boost import boost_energy, boost_params, boosted_pull_in
+from ..model.armature_runs import PullInBatch, pull_in
+from ..model.rl import rise_current
+
+
+@dataclass(frozen=True)
+class BoostRuns:
+    """The runs of the module docstring, arrays over the points (s, A, V, J).
+
+    ``slow``: the pull-in (:func:`~coildrive.model.armature_boost.boosted_pull_in`; its
+    ``trip_time`` the end of the shortest peak, ``bound`` the window's end (s from
+    switch-on), ``peak_end_current`` ``end_current``). ``long_time``: the longest peak (``inf`` where the boost at its lowest
+    never drives the highest trip current); ``low_boost``: the boost capacitor at its end
+    (NaN where never; the boost itself for an ideal one). ``fast_time``: the shortest time to
+    the threshold. ``end_current``: the most current at the end of the peak (a bound),
+    ``end_boost`` the boost at full charge then (V);
+    ``energy``: the most the boost gives in one peak (J). ``duty``: the hold's duty the
+    pull-in ran with (its reuse key). ``window``: the seat's window (s from switch-on)."""
+
+    slow: PullInBatch
+    long_time: np.ndarray
+    low_boost: np.ndarray
+    fast_time: np.ndarray
+    end_current: np.ndarray
+    end_boost: np.ndarray
+    energy: np.ndarray
+    duty: np.ndarray
+    window: float
+
+
+def _boost(drive: Drive, p: ArmatureParams, high: bool) -> ArmatureParams:
+    s = drive.supply
+    sign = 1.0 if high else -1.0
+    return boost_params(p, s.boost * (1.0 + sign * s.boost_tolerance),
+                        s.boost_capacitance * (1.0 + sign * s.boost_capacitance_tolerance), s.boost_resistance)
+
+
+def _end(drive: Drive, pb: ArmatureParams, pin: PullInBatch, i_trip: float):
+    """``(end of the peak s, the most current then A, the boost then V, energy J)`` one
+    conversion after ``pin``'s trip at ``i_trip`` A: the open coil's stiff rise at the
+    boost's voltage bounds the current over it (with an eddy term the magnetising current's
+    rise through the loop's Thevenin pair, and the terminal current ``(V_b + R_e i_m)/(R +
+    R_e)`` from it); the capacitor gives at most that current.
+    Where the trip never comes: ``inf``, ``i_trip``, the boost's full voltage, NaN."""
+    dt = 1.0 / drive.board.adc.sample_rate
+    hit = np.isfinite(pin.trip_time)
+    y = np.where(hit, pin.trip_state, 0.0)
+    if pb.eddy is None:
+        i_end = rise_current(dt, i_trip, pb.v_on, pb.r_on, pb.l_open)
+    else:   # the magnetising current's bound (its Thevenin rise), then the terminal current's
+        i_m = rise_current(dt, pb.current(y[0], y[1]), pb.v_on, pb.r_on, pb.coil_open)
+        i_end = np.maximum((pb.v_on + pb.eddy * i_m) / (pb.r_on + pb.eddy), i_trip)
+    if pb.droops:
+        u = y[5] - i_end * dt / pb.capacitance
+        y = np.concatenate([y[:5], u[None]])
+    else:
+        u = pb.v_on.copy()
+        y = np.concatenate([y[:3], (y[3] + i_end * dt)[None], y[4:5]])
+    nan = np.full(len(pb), np.nan)
+    # (where the trip never comes the current stays below it; the boost no higher than full)
+    return (np.where(hit, pin.trip_time + dt, np.inf), np.where(hit, i_end, i_trip),
+            np.where(hit, u, pb.v_on), np.where(hit, boost_energy(pb, y), nan))
+
+
+def runs(drive: Drive, p: ArmatureParams, duty, period, i_top, thresholds: tuple[float, float]) -> BoostRuns:
+    """The runs of the module docstring at the points of ``p`` (the hold's loop on the main
+    supply), the hold's ``duty`` and ``period`` s (per point) and its steady ripple top
+    ``i_top`` A; ``thresholds``: the threshold and the highest trip current, A
+    (:func:`coildrive.design.boost.threshold`)."""
+    i_th, i_trip = thresholds
+    low, high = _boost(drive, p, False), _boost(drive, p, True)
+    long_time, _, low_boost, energy_low = _end(drive, low, pull_in(low, trip=i_trip), i_trip)
+    finite = long_time[np.isfinite(long_time)]
+    until = drive.pull_in.margin * (float(np.max(finite)) if finite.size else 0.0)
+    slow = boosted_pull_in(low, p, i_th, duty, period, until, i_top)
+    fast_time = pull_in(high, trip=i_th).trip_time
+    _, end_current, end_boost, energy_high = _end(drive, high, pull_in(high, trip=i_trip), i_trip)
+    slow = replace(slow, peak_end_current=end_current)
+    return BoostRuns(slow=slow, long_time=long_time, low_boost=low_boost, fast_time=fast_time,
+                     end_current=end_current, end_boost=end_boost, energy=np.fmax(energy_low, energy_high),
+                     duty=np.broadcast_to(np.asarray(duty, float), (len(p),)).copy(), window=until)
+
+
+def nominal_trip_time(drive: Drive, p: ArmatureParams, trip: float) -> float:
+    """The boosted peak the firmware runs at one point (``p``, one point): from the boost at
+    its nominal voltage and capacitance until the armature run's current reaches ``trip`` A
+    (s; ``inf`` where never)."""
+    s = drive.supply
+    pb = boost_params(p, s.boost, s.boost_capacitance, s.boost_resistance)
+    return float(pull_in(pb, trip=trip).trip_time[0])

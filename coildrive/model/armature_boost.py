@@ -1,0 +1,227 @@
+"""A moving armature's boosted peak: the peak from the boost until the current threshold,
+then the PWM hold from the main supply, the armature moving through both.
+
+The peak (:func:`coildrive.model.armature_runs.pull_in` with ``trip``): the armature's
+equations (:mod:`coildrive.model.armature`) with the boost in the supply's place -- a
+stiff source at ``V_b`` (an ideal boost), or the boost capacitor ``C_b`` as the run's
+sixth state with no source behind it (``source_resistance = inf``)::
+
+    dlambda/dt = u - (R_on + R_b) i          C_b du/dt = -i          u(0) = V_b
+
+until the coil's current first reaches the threshold (``i_trip``; with an eddy term the
+branch's flux and force, the loop's Thevenin pair, and the threshold on the terminal
+current the sense sees, as on the drooping bus of :mod:`coildrive.model.armature`). Where the armature
+seats first the threshold comes on the seat (the seated coil's closed form from the seat's
+state); where it comes first the armature is still open or in flight, and the hold
+carries it on: all such points at once, flown from PWM edge to PWM edge from the state
+at the threshold through the hold on the main supply (on for ``D T``, off through the
+freewheel path for the rest of each period ``T``, the first on-time at the threshold)
+until it rests on the seat, falls back to the open stop where the hold's highest current
+cannot start it again, or a window ends (the design's: ``pull_in.margin`` x the longest
+boosted peak over the envelope -- flying a weak hold's slow approach edge by edge for as long as
+the mechanics' own time bound would cost minutes over the envelope, and an armature that
+is not seated by then fails the design anyway).
+
+Energy: the boost gives ``1/2 C_b (V_b^2 - u^2)`` (an ideal boost ``V_b int i dt``),
+which is the field's energy plus the loop's ``R int i^2 dt`` plus the mechanical work
+(the armature's kinetic energy, the spring's and the load's, the damping's heat).
+
+Units: SI (V, A, ohm, H, F, m, kg, N, s, J).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+
+import numpy as np
+
+from .armature import (BOUND, MAX_BOUNCES, OPEN, REST_FRACTION, SEAT, SEATED, STALLED, TRIPPED, ZERO,
+                       ArmatureParams)
+from .armature_flight import fly_mixed, is_stiff
+from .armature_runs import PullInBatch, pull_in
+
+#: Most PWM edges the hold after the threshold is followed through (never hang; the time
+#: bound ends it first at any frequency the timer makes in practice).
+MAX_EDGES = 200_000
+
+
+def boost_params(p: ArmatureParams, v_b, c_b, r_b) -> ArmatureParams:
+    """``p`` (the hold's points, main supply) with the boost as the peak's source: ``v_b``
+    V, the boost path's ``r_b`` ohm added to the on-loop, and ``c_b`` F a capacitor with no
+    source (0: a stiff, ideal boost)."""
+    n = len(p)
+    c = np.broadcast_to(np.asarray(c_b, float), (n,)).astype(float)
+    return dataclasses.replace(
+        p, v_on=np.broadcast_to(np.asarray(v_b, float), (n,)).astype(float), r_on=p.r_on + r_b,
+        source_resistance=np.where(c > 0, np.inf, 0.0), capacitance=c)
+
+
+def hold_schedule(t0: float, t_end: float, duty: float, period: float) -> list:
+    """The PWM hold's segments ``(t_end, on)`` from ``t0`` s to ``t_end`` s: on for
+    ``duty x period`` s, then off for the rest of each period."""
+    out = []
+    t_on = duty * period
+    k = 0
+    while True:
+        start = t0 + k * period
+        if start >= t_end:
+            return out
+        if t_on > 0:
+            out.append((min(start + t_on, t_end), True))
+        if t_on < period and start + t_on < t_end:
+            out.append((min(start + period, t_end), False))
+        k += 1
+
+
+def boosted_pull_in(p_boost: ArmatureParams, p_hold: ArmatureParams, trip, duty, period, until,
+                    i_top=None, rtol: float = 1e-7) -> PullInBatch:
+    """Switch-on from rest: the boost (``p_boost``, :func:`boost_params`) until the current
+    reaches ``trip`` A, then the hold (``p_hold``: the main supply's loop, ``duty`` and
+    ``period`` s per point) until the armature seats, or ``until`` s after switch-on (per
+    point; the design's window: ``pull_in.margin`` x the longest boosted peak),
+    whichever comes first (module docstring).
+
+    The result is :func:`~coildrive.model.armature_runs.pull_in`'s with ``trip_time`` and
+    ``trip_state`` the threshold's moment (the end of the peak), and where that came
+    before the seat the hold's outcome in ``status`` (SEATED or STALLED), ``seat_time``,
+    ``seat_current``, ``impact_time``, ``dip_current`` (the current at the impact, in the
+    hold) and ``stall_gap`` (where it was at ``until``: ``bound``). ``i_top`` (A per point): the hold's highest current (its
+    steady ripple top); where the armature falls back to the open stop with ``i_top``
+    below its start current it stays there (STALLED at the full stroke).
+    """
+    n = len(p_hold)
+    pin = pull_in(p_boost, trip=trip, rtol=rtol)
+    out = {k: np.array(getattr(pin, k), copy=True) for k in
+           ("status", "seat_time", "seat_current", "impact_time", "impact_speed", "dip_current",
+            "dip_time", "stall_gap", "bound", "bounces", "steps")}
+    k = np.flatnonzero(pin.status == TRIPPED)
+    if k.size:
+        top = np.full(n, np.inf) if i_top is None else np.broadcast_to(np.asarray(i_top, float), (n,))
+        got = _hold_flights(p_hold.take(k), pin.trip_time[k], pin.trip_state[:5, k],
+                            np.broadcast_to(np.asarray(duty, float), (n,))[k],
+                            np.broadcast_to(np.asarray(period, float), (n,))[k],
+                            np.broadcast_to(np.asarray(until, float), (n,))[k], top[k], rtol)
+        for name, value in got.items():
+            out[name][k] = value
+    return dataclasses.replace(pin, **out)
+
+
+def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: float) -> dict:
+    """The hold after the threshold for points whose armature is open or in flight there
+    (``t0`` s, states ``y0``: lambda, x, v, q, sq) until ``until`` s, all at once: the batched flight
+    (:func:`~coildrive.model.armature_flight.fly_mixed`) from PWM edge to PWM edge, the
+    seat's bounces as in :func:`~coildrive.model.armature_runs.pull_in`; a point resting
+    on the open stop whose hold could start it again (``i_top`` above its start current)
+    goes on alone through :func:`~coildrive.model.armature_sim.simulate`. Returns the
+    :class:`PullInBatch` fields of :func:`boosted_pull_in`."""
+    n = len(p)
+    t = np.asarray(t0, float).copy()
+    y = np.asarray(y0, float).copy()
+    t_on = duty * period
+    bound = np.maximum(np.asarray(until, float), t)
+    lam_stay = p.flux_closed(p.stay_current)
+    lam_start = p.flux_open(p.start_current)
+    stiff = is_stiff(p, p.opening_force(p.stroke))
+    nan = np.full(n, np.nan)
+    res = dict(status=np.full(n, STALLED), seat_time=np.full(n, np.inf), seat_current=nan.copy(),
+               impact_time=nan.copy(), impact_speed=nan.copy(), dip_current=nan.copy(),
+               dip_time=nan.copy(), stall_gap=nan.copy(), bound=bound, bounces=np.zeros(n, int),
+               steps=np.zeros(n, int))
+    # resting on the open stop at the threshold (it came before the motion): free once
+    # the flux passes the start current's (the flight's own first step sees to that)
+    on = np.ones(n, bool)
+    live = np.ones(n, bool)
+    cycle = np.zeros(n)                 # the start of the current PWM period, s after t0
+    edge = np.minimum(t + t_on, bound)
+    active = np.ones(n, bool)
+    alone = np.zeros(n, bool)
+    for _ in range(MAX_EDGES):
+        if not active.any():
+            break
+        fl = fly_mixed(p, t, y, edge, active, on, live, stiff, rtol)
+        res["steps"] += np.where(active, fl.steps, 0)
+        t = np.where(active, fl.t, t)
+        y = np.where(active, fl.y, y)
+        seat = active & (fl.end == SEAT)
+        first = seat & np.isnan(res["impact_time"])
+        res["impact_time"] = np.where(first, t, res["impact_time"])
+        res["impact_speed"] = np.where(first, -y[2], res["impact_speed"])
+        i_dip = p.current(y[0], 0.0)   # (with an eddy term what the sense sees: the terminal current)
+        res["dip_current"] = np.where(first, i_dip if p.eddy is None else p.terminal(i_dip, on), res["dip_current"])
+        rebound = p.restitution * np.abs(y[2])
+        bounce = (seat & (rebound >= REST_FRACTION * res["impact_speed"]) & (res["bounces"] < MAX_BOUNCES)
+                  & (rebound > 0))
+        res["bounces"] += bounce
+        y[2] = np.where(bounce, rebound, np.where(seat, 0.0, y[2]))
+        holds = seat & ~bounce & (y[0] >= lam_stay)
+        res["status"] = np.where(holds, SEATED, res["status"])
+        res["seat_time"] = np.where(holds, t, res["seat_time"])
+        res["seat_current"] = np.where(holds, p.current(y[0], 0.0), res["seat_current"])
+        active &= ~holds
+        opn = active & (fl.end == OPEN)
+        y[2] = np.where(opn, 0.0, y[2])
+        rests = opn & (y[0] <= lam_start)
+        stays = rests & (i_top < p.start_current)
+        res["stall_gap"] = np.where(stays, p.stroke, res["stall_gap"])
+        alone |= rests & ~stays
+        active &= ~rests
+        live = np.where(active & (fl.end == ZERO), False, live)
+        # a PWM edge (or the bound) reached: switch
+        at_edge = active & (fl.end == BOUND) & (t >= edge * (1.0 - 1e-15))
+        over = at_edge & (t >= bound * (1.0 - 1e-15))
+        res["stall_gap"] = np.where(over, y[1], res["stall_gap"])
+        active &= ~over
+        turn = at_edge & ~over
+        off = turn & on & (t_on < period)
+        back = turn & ~off
+        cycle = np.where(back, cycle + period, cycle)
+        on = np.where(off, False, np.where(back, True, on))
+        live = np.where(back, True, live)
+        edge = np.where(off, t0 + cycle + period, np.where(back, t0 + cycle + t_on, edge))
+        edge = np.minimum(np.maximum(edge, t), bound)
+        stuck = active & (fl.end == BOUND) & ~at_edge     # the step size collapsed
+        res["stall_gap"] = np.where(stuck, y[1], res["stall_gap"])
+        active &= ~stuck
+    res["stall_gap"] = np.where(active, y[1], res["stall_gap"])
+    res["dip_time"] = np.where(res["status"] == SEATED, res["impact_time"], np.nan)
+    res["dip_current"] = np.where(res["status"] == SEATED, res["dip_current"], np.nan)
+    for j in np.flatnonzero(alone):
+        _alone(p.take(j), float(t0[j]), y0[:, j], float(duty[j]), float(period[j]), float(bound[j]),
+               res, j, rtol)
+    return res
+
+
+def _alone(pj: ArmatureParams, t0: float, y0, duty: float, period: float, bound: float, res: dict,
+           j: int, rtol: float) -> None:
+    """One point's hold from the threshold through :func:`~coildrive.model.armature_sim.simulate`
+    (an armature that fell back to the open stop and may start again), into ``res[...][j]``."""
+    from .armature_sim import simulate
+
+    opened = y0[1] >= pj.stroke[0] and y0[2] == 0.0
+    tr = simulate(pj, hold_schedule(t0, bound, duty, period), state="open" if opened else "free",
+                  start=y0, live=True, t0=t0, stop=lambda r: r.state == "seated", rtol=rtol, points=2)
+    seated = tr.state == "seated"
+    ev = tr.events
+    res["status"][j] = SEATED if seated else STALLED
+    res["seat_time"][j] = ev.get("seat", math.inf) if seated else math.inf
+    res["seat_current"][j] = float(tr.current[-1]) if seated else math.nan
+    res["impact_time"][j] = ev.get("impact", math.nan)
+    res["dip_time"][j] = ev.get("impact", math.nan) if seated else math.nan
+    res["dip_current"][j] = ev.get("dip_current", math.nan) if seated else math.nan
+    res["stall_gap"][j] = math.nan if seated else float(tr.position[-1])
+
+
+def seated_in_peak(pin: PullInBatch) -> np.ndarray:
+    """Where the armature of a :func:`boosted_pull_in` rests on the seat by the end of the
+    peak (the threshold), as opposed to in the hold."""
+    return (pin.status == SEATED) & (pin.seat_time <= pin.trip_time)
+
+
+def boost_energy(p_boost: ArmatureParams, state) -> np.ndarray:
+    """J the boost has given at a run's ``state`` (rows of the run): ``1/2 C_b (V_b^2 -
+    u^2)`` with the capacitor's ``u``, an ideal boost ``V_b int i dt``."""
+    q = state[3]
+    if p_boost.droops:
+        return 0.5 * p_boost.capacitance * (p_boost.v_on**2 - state[5]**2)
+    return p_boost.v_on * q
