@@ -111,6 +111,8 @@ def test_release_and_buses_match_solve_ivp(tmp_path, hold, sink):
                                             drive.release.current, 1e-11, 1e-13)
     assert rel["time_s"] == pytest.approx(t_drop, rel=1e-6)               # scipy solve_ivp (Radau)
     assert rel["zero_time_s"] >= t_zero * (1 - 1e-6)
+    # the driver's lockout after a release covers the drooped bus's zero time (whole ticks + 1)
+    assert rel["lockout_ticks"] == math.ceil(rel["zero_time_s"] * drive.board.tick.rate - 1e-9) + 1
     stiff = ell / (r + rsense) * math.log((top + (v_s + 2 * v_d) / (r + rsense))
                                           / (drive.release.current + (v_s + 2 * v_d) / (r + rsense)))
     assert rel["time_s"] > stiff * 1.01, "the drooped bus slows the release"
