@@ -26,6 +26,10 @@ to it), then replaces everything the hold decides with the current-mode model of
   cautions, and what split decay would save; with split decay
   (``freewheel.split_decay``) the off segments take the slow path (the thresholds and
   the switching frequency follow it) and the release the fast one.
+* on the drooping bus (``supply.source_resistance``) the corners are taken again with the
+  coil cold (at the ambient): the lowest bus in the peak, and on a full bridge every
+  turn-off's fast decay into the bus (:mod:`coildrive.design.bridge_bus`) and the pump-up,
+  each the worse of the settled and the cold coil.
 
 In the design JSON ``hold.frequency_hz`` is the switching frequency at the nominal
 point, ``hold.duty`` the largest switch-on fraction over the corners (1 where the
