@@ -1420,9 +1420,12 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     """What the drooping bus (``supply.source_resistance``) is modelled with: a linear coil
     or a flux-linkage curve, either with an eddy-current term (a curve with one:
     :func:`coildrive.model.flux_bus.bus`), one switch (low or high side) or a full bridge
-    (a voltage-mode, slow-decay, open-loop hold; its fast decay into the bus is
-    :mod:`coildrive.model.bus_decay`, with a curve :mod:`coildrive.model.flux_bus_decay`,
-    on a supply that cannot sink with the feed blocking, with an eddy term too). Any hold
+    (a slow-decay hold: voltage mode, fixed or supply table, current mode or the closed
+    loop; every turn-off's fast decay into the bus is :mod:`coildrive.model.bus_decay`,
+    with a curve :mod:`coildrive.model.flux_bus_decay`, on a supply that cannot sink with
+    the feed blocking, with an eddy term too: :mod:`coildrive.design.bridge_bus`; not its
+    mixed-decay hold, whose every off-time returns current into the bus, nor a latching
+    coil's pulses). Any hold
     (the droop is the peak's; a regulated hold takes it out of the hold) and any freewheel
     path (a clamp's release, which draws from the bus, is computed on the undrooped bus:
     the safe side). A moving armature: a linear coil or its open and seated curves (an
@@ -1434,11 +1437,10 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
         return
     why = None
     if switch.topology == "full_bridge" and hold.fast_fraction > 0:
-        key, why = "hold.fast_fraction", "a full bridge's mixed-decay hold"
-    elif switch.topology == "full_bridge" and hold.mode != "voltage":
-        key, why = "hold.mode", f"a full bridge with hold.mode = {hold.mode!r}"
-    elif switch.topology == "full_bridge" and hold.regulation == "closed_loop":
-        key, why = "hold.regulation", "a full bridge with a closed-loop hold"
+        key, why = "hold.fast_fraction", ("a full bridge's mixed-decay hold (each off-time's fast part "
+                                          "returns current into the drooping bus)")
+    elif switch.topology == "full_bridge" and hold.mode == "latch":
+        key, why = "hold.mode", "a latching coil on a full bridge"
     elif armature is not None and switch.topology == "full_bridge":
         key, why = "armature", "a moving armature on a full bridge"
     elif armature is not None and hold.mode == "latch":
@@ -1446,8 +1448,7 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
                          f"{why}: expected source_resistance left out, or one switch (a full bridge: "
-                         "a voltage-mode, slow-decay, open-loop hold, no [armature]; a latching coil: "
-                         "no [armature])")
+                         "a slow-decay peak-and-hold, no [armature]; a latching coil: one switch, no [armature])")
 
 
 def _read_boost(s: "_Section") -> tuple:

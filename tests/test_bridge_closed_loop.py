@@ -207,10 +207,6 @@ def test_what_a_closed_loop_bridge_refuses_is_one_line(tmp_path):
     with pytest.raises(InputError) as err:
         load_drive(path)
     assert "hold.fast_fraction" in str(err.value) and "regulated hold decays slowly" in str(err.value)
-    path = _variant(tmp_path, ('capacitance = "220 uF"', 'source_resistance = "0.2 ohm"\ncapacitance = "220 uF"'))
-    with pytest.raises(InputError) as err:
-        load_drive(path)
-    assert "hold.regulation" in str(err.value) and "drooping bus" in str(err.value)
     r = run_cli("tune", str(_variant(tmp_path, name="t.toml")))   # as for one switch
     assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1 and "hold.regulation" in r.stderr
 

@@ -231,8 +231,6 @@ def device_checks(d, tmp_path):
 @pytest.mark.parametrize("edit, key, fragment", [
     (('frequency = "20 kHz"\nmode = "current"\n', 'frequency = "20 kHz"\nmode = "current"\nfast_fraction = 0.3\n'),
      "hold.fast_fraction", "regulated hold decays slowly"),
-    (('capacitance = "220 uF"', 'source_resistance = "0.2 ohm"\ncapacitance = "220 uF"'),
-     "hold.mode", "drooping bus"),
 ])
 def test_what_a_current_mode_bridge_refuses_is_one_line(tmp_path, edit, key, fragment):
     path = _variant(tmp_path, edit)

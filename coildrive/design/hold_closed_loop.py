@@ -39,6 +39,7 @@ from . import loop_gains
 from .loop_duty import (MAX_DUTY, MIN_ON_TIME_S, codes_per_amp, reading_range, regulated_duty,
                         settled_duty)
 from .boost import boost_outputs, boosted_points, boosted_turn_offs, peak_in_force
+from .bridge_bus import bridge_bus_checks, bridge_release
 from .checks import base_checks
 from .corners import nominal_point
 from .envelope import envelope, heating_grid, hottest, tolerances
@@ -225,6 +226,9 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     release = release_result(drive, env, res, offs)
     topo = topology_result(drive, env, res, peak_end, thresholds.trip_current_a)
     release = pumped_release(release, topo)
+    # a full bridge on the drooping bus: every turn-off's fast decay into it, from the
+    # regulated hold's own top (the envelope has the cold coil and the hot)
+    release, bridge_bus = bridge_release(drive, env, res, release, long_, peak_end, thresholds.trip_current_a)
     pull_in = pull_in_result(drive, env, res, pk, shortest_peak_current(drive, res_low, short))
     timer_result = TimerResult(clock_hz=board.timer.clock, bits=board.timer.bits,
                                prescaler=timer.prescaler, period_ticks=period, compare_ticks=preload,
@@ -239,14 +243,14 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     checks += more
     notes += topology_cautions(drive, topo)
     checks += bridge_checks(drive, topo)
-    thermal = cycle_result(drive, pts, heat_peak, offs, hold.freewheel_power_w,
+    thermal = cycle_result(drive, pts, heat_peak, release.turn_offs, hold.freewheel_power_w,
                            hold.freewheel_elements_w)
     checks += thermal_checks(drive, pull_in.peak_time_s, thermal)
     if thermal is not None and thermal.cycle is not None:
         notes[2] = cycle_caution(thermal)   # the envelope's hot coil is the cycle's
     notes += thermal_cautions(thermal)
-    sup = drooping_bus(drive, env, res, long_, run_high, thresholds)
-    checks += supply_checks(sup)
+    sup = drooping_bus(drive, env, res, long_, run_high, thresholds, bridge_bus)
+    checks += supply_checks(sup) + bridge_bus_checks(drive, sup)
     boost, boost_rows, boost_notes = boost_outputs(drive, env, res_low, board.tick.rate)
     checks += boost_rows
     notes += boost_notes

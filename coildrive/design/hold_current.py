@@ -26,6 +26,10 @@ to it), then replaces everything the hold decides with the current-mode model of
   cautions, and what split decay would save; with split decay
   (``freewheel.split_decay``) the off segments take the slow path (the thresholds and
   the switching frequency follow it) and the release the fast one.
+* on the drooping bus (``supply.source_resistance``) the corners are taken again with the
+  coil cold (at the ambient): the lowest bus in the peak, and on a full bridge every
+  turn-off's fast decay into the bus (:mod:`coildrive.design.bridge_bus`) and the pump-up,
+  each the worse of the settled and the cold coil.
 
 In the design JSON ``hold.frequency_hz`` is the switching frequency at the nominal
 point, ``hold.duty`` the largest switch-on fraction over the corners (1 where the
@@ -59,6 +63,7 @@ from .evaluate import PointResults, moving_armature, release_figures, switch_vol
 from .figures import (adc_code, adc_thresholds, corners_of, hold_spread, loss_figures, pull_in_result,
                       release_result, saving_figures, slow_hold_drive)
 from .boost import boost_outputs, boosted_points, boosted_turn_offs, peak_in_force
+from .bridge_bus import bridge_bus_checks, bridge_release
 from .diagnostics import rise_check, seat_check
 from .eddy import eddy_result
 from .peak import plan_peak, shortest_peak_current
@@ -70,7 +75,8 @@ from .result import Check, CurrentModeResult, Design, HoldResult, Thresholds
 from .thermal_cycle import (HeatPoints, cycle_caution, cycle_result, cycling, thermal_cautions,
                             thermal_checks)
 from .timer import solve_timer, timer_for
-from .topology import bridge_checks, pumped_release, topology_cautions, topology_result
+from .topology import (bridge_checks, pumped_release, topology_cautions, topology_result,
+                       worse_bridge)
 
 #: Upper end of the allowed switching range when neither ``hold.max_frequency`` nor the
 #: board's ``timer.max_pwm_frequency`` gives one (our choice, as for ``coildrive tune``).
@@ -457,7 +463,19 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     release = release_result(drive, grid, res, offs)
     # a full bridge: its fast decay's energy returned, the bus pump-up and its checks
     topo = topology_result(drive, grid, res, res.peak_end_current, thresholds.trip_current_a)
+    cold = None
+    if drive.supply.droops:
+        # the corners' coil is the hold's settled one; a cold start draws the most current
+        # in the peak (the lowest bus) and, on a full bridge, decays the slowest, returning
+        # the most into the bus
+        cold, cold_cm = evaluate_current(drive, th, grid.supply, grid.ambient, grid.r_factor,
+                                         grid.l_factor, peak_time, heat_peak, coil_temp=grid.ambient)
+        if full_bridge(drive):
+            topo = worse_bridge(topo, topology_result(drive, ColdGrid(grid), cold, cold.peak_end_current,
+                                                      thresholds.trip_current_a))
     release = pumped_release(release, topo)
+    release, bridge_bus = _bridge_release(drive, grid, res, cold, release, pk.long_time,
+                                          thresholds.trip_current_a)
     pull_in = pull_in_result(drive, grid, res, pk, shortest_peak_current(drive, res, pk.short_time))
 
     setting = timer_for(drive)
@@ -480,16 +498,13 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     thermal = cycle_result(drive, heat_points(drive, grid.supply, grid.ambient, grid.r_factor,
                                               grid.l_factor, lower, th.upper_a, th.off_time_s,
                                               th.delay_s, grid.label),
-                           heat_peak, offs, hold.freewheel_power_w, hold.freewheel_elements_w)
+                           heat_peak, release.turn_offs, hold.freewheel_power_w, hold.freewheel_elements_w)
     checks += thermal_checks(drive, pull_in.peak_time_s, thermal)
-    sup = drooping_bus(drive, grid, res, pk.long_time, cm.duty, thresholds)
+    sup = drooping_bus(drive, grid, res, pk.long_time, cm.duty, thresholds, bridge_bus)
     if sup is not None:
-        # the corners' coil is the hold's settled one; a cold start draws the most current
-        cold, cold_cm = evaluate_current(drive, th, grid.supply, grid.ambient, grid.r_factor,
-                                         grid.l_factor, peak_time, heat_peak, coil_temp=grid.ambient)
         sup = lower_bus(sup, drooping_bus(drive, ColdGrid(grid), cold, pk.long_time, cold_cm.duty,
                                           thresholds))
-    checks += supply_checks(sup)
+    checks += supply_checks(sup) + bridge_bus_checks(drive, sup)
     boost, boost_rows, boost_notes = boost_outputs(drive, grid, res, board.tick.rate)
     checks += boost_rows
     notes += boost_notes
@@ -511,17 +526,34 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
         seat_check=seat_check(drive, grid, res), eddy=eddy_result(drive, grid, res))
 
 
-def drooping_bus(drive: Drive, grid, res: PointResults, peak_time, duty, thresholds):
+def drooping_bus(drive: Drive, grid, res: PointResults, peak_time, duty, thresholds,
+                 bridge_bus: dict | None = None):
     """The supply's figures (:func:`coildrive.design.supply.supply_result`) of a hold that
     regulates its current: the peak of ``peak_time`` s on the drooping bus at the points of
     ``res``, the hold's switch-on fraction ``duty`` for its capacitor ripple; the firmware
-    reads the bus through the board's supply sense as for the voltage-mode hold."""
+    reads the bus through the board's supply sense as for the voltage-mode hold.
+    ``bridge_bus``: a full bridge's highest bus
+    (:func:`coildrive.design.bridge_bus.bridge_release`)."""
     b = drive.board
     sense = b.supply_sense
 
     def read(volts):
         return adc_code(volts / sense.divider, b.adc.reference, b.adc.bits)
-    return supply_result(drive, grid, res, peak_time, duty, read, thresholds.supply_min_code)
+    return supply_result(drive, grid, res, peak_time, duty, read, thresholds.supply_min_code, bridge_bus)
+
+
+def _bridge_release(drive: Drive, grid: CornerGrid, res: PointResults, cold: PointResults | None,
+                    release, peak_time: float, trip_current: float) -> tuple:
+    """:func:`coildrive.design.bridge_bus.bridge_release` of a full bridge on the drooping
+    bus at the corners with the coil at its settled heat (``res``) and cold (``cold``, at
+    the ambient: the lowest bus in the peak, the slowest fast decay), each figure the
+    worse of the two; the release and its highest-bus dict (``{}`` elsewhere)."""
+    release, bus = bridge_release(drive, grid, res, release, peak_time, res.peak_end_current, trip_current)
+    if not bus:
+        return release, bus
+    release, bus_cold = bridge_release(drive, ColdGrid(grid), cold, release, peak_time,
+                                       cold.peak_end_current, trip_current)
+    return release, max(bus, bus_cold, key=lambda b: b["highest_bus_v"])
 
 
 @dataclasses.dataclass(frozen=True)

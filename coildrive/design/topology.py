@@ -132,6 +132,21 @@ def bridge_result(drive: Drive, grid: CornerGrid, res: PointResults, peak_end,
     return BridgeResult(**out)
 
 
+def worse_bridge(result: TopologyResult, other: TopologyResult) -> TopologyResult:
+    """A full bridge's ``result`` with each of its figures -- the energy returned per release
+    and at the worst turn-off, the pumped bus -- taken from ``other`` (the same bridge at
+    other points: a cold coil) where it is worse there."""
+    a, b = result.bridge, other.bridge
+    groups = (("returned_per_release_j", "release_corner"),
+              ("returned_worst_j", "worst_event", "worst_corner"),
+              ("pumped_bus_v", "pump_up_v", "pump_event", "pump_corner", "pumped_switch_voltage_v"))
+    out = {}
+    for head, *rest in groups:
+        if getattr(b, head) is not None and (getattr(a, head) is None or getattr(b, head) > getattr(a, head)):
+            out.update({name: getattr(b, name) for name in (head, *rest)})
+    return dataclasses.replace(result, bridge=dataclasses.replace(a, **out))
+
+
 def pumped_release(release: ReleaseResult, result: TopologyResult | None) -> ReleaseResult:
     """The release figures with the switches' voltage on a pumped bus (a full bridge whose
     supply cannot sink the returned energy), so that the switch-voltage check sees it."""
