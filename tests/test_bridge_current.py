@@ -96,6 +96,11 @@ def test_hysteretic_corners_against_the_switching_times(hysteretic):
         assert c["release_time_s"] == pytest.approx(t_drop, rel=1e-9), c["label"]
         t_zero = ell / r_fast * math.log((hi + big_b) / big_b)
         returned.append(v * (ell * hi - v_fast * t_zero) / r_fast)
+        # the same coil switched on cold (at the ambient; copper R(T) by IEC 60028,
+        # alpha = 0.00393 /K): less copper, more back into the bus
+        r_c = r * (1 + 0.00393 * (c["ambient_c"] - 20.0)) / (1 + 0.00393 * (c["coil_temp_c"] - 20.0)) + rs
+        t_zero_c = ell / r_c * math.log((hi + v_fast / r_c) / (v_fast / r_c))
+        returned.append(v * (ell * hi - v_fast * t_zero_c) / r_c)
     assert cm["min_frequency_hz"] == pytest.approx(min(freqs), rel=1e-9)
     assert cm["max_frequency_hz"] == pytest.approx(max(freqs), rel=1e-9)
     # the energy back into the bus per release (from the band's top), the corner that has the most

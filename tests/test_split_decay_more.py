@@ -61,6 +61,9 @@ def _drive_file(tmp_path: Path, base: str, extra: str = "", *, current: str | No
     if current:
         text = text.replace('frequency = "25 kHz"',
                             f'frequency = "25 kHz"\nmode = "current"\ncontrol = "{current}"')
+        # up to 27 V: at 28 V the fixture's cold coil ends its fixed peak too close to the
+        # ADC's full scale for the over-current trip's headroom (adc_over_current fails)
+        text = text.replace('max = "28 V"', 'max = "27 V"')
     if board:
         first = text.split("board = ", 1)[1].split("\n", 1)[0]
         text = text.replace(f"board = {first}", f'board = "{board}"')

@@ -457,22 +457,27 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
         current_step_a=th.lsb_a, **_spread(drive, grid, res), **loss_figures(drive, grid, loss),
         split_decay_saving=_split_saving(drive, grid, res, cm, loss, fallback, peak_time),
         current_mode=result, thresholds=th, regulation="current")
-    thresholds = adc_thresholds(drive, res, res, hold.min_mean_current_a, grid)
-    offs = boosted_turn_offs(drive, grid, res,
-                             turn_offs(drive, grid, res, res.peak_end_current, thresholds.trip_current_a))
-    release = release_result(drive, grid, res, offs)
+    # The corners' coil is the hold's settled one (the slowest pull-in); a coil switched on
+    # cold draws the most current in the peak (the over-current threshold, the lowest bus,
+    # the turn-offs' energy) and decays the slowest (the release, a bridge's return).
+    cold, cold_cm = evaluate_current(drive, th, grid.supply, grid.ambient, grid.r_factor,
+                                     grid.l_factor, peak_time, heat_peak, coil_temp=grid.ambient)
+    cold = boosted_points(drive, cold)
+    cold_grid = ColdGrid(grid)
+    thresholds = max((adc_thresholds(drive, res, res, hold.min_mean_current_a, grid),
+                      adc_thresholds(drive, cold, res, hold.min_mean_current_a, cold_grid)),
+                     key=lambda t: t.healthy_max_current_a)
+    release = release_result(drive, grid, res, boosted_turn_offs(
+        drive, grid, res, turn_offs(drive, grid, res, res.peak_end_current, thresholds.trip_current_a)))
+    release = slower_release(release, release_result(drive, cold_grid, cold, boosted_turn_offs(
+        drive, cold_grid, cold, turn_offs(drive, cold_grid, cold, cold.peak_end_current,
+                                          thresholds.trip_current_a))))
+    offs = release.turn_offs
     # a full bridge: its fast decay's energy returned, the bus pump-up and its checks
     topo = topology_result(drive, grid, res, res.peak_end_current, thresholds.trip_current_a)
-    cold = None
-    if drive.supply.droops:
-        # the corners' coil is the hold's settled one; a cold start draws the most current
-        # in the peak (the lowest bus) and, on a full bridge, decays the slowest, returning
-        # the most into the bus
-        cold, cold_cm = evaluate_current(drive, th, grid.supply, grid.ambient, grid.r_factor,
-                                         grid.l_factor, peak_time, heat_peak, coil_temp=grid.ambient)
-        if full_bridge(drive):
-            topo = worse_bridge(topo, topology_result(drive, ColdGrid(grid), cold, cold.peak_end_current,
-                                                      thresholds.trip_current_a))
+    if full_bridge(drive):
+        topo = worse_bridge(topo, topology_result(drive, cold_grid, cold, cold.peak_end_current,
+                                                  thresholds.trip_current_a))
     release = pumped_release(release, topo)
     release, bridge_bus = _bridge_release(drive, grid, res, cold, release, pk.long_time,
                                           thresholds.trip_current_a)
@@ -554,6 +559,22 @@ def _bridge_release(drive: Drive, grid: CornerGrid, res: PointResults, cold: Poi
     release, bus_cold = bridge_release(drive, ColdGrid(grid), cold, release, peak_time,
                                        cold.peak_end_current, trip_current)
     return release, max(bus, bus_cold, key=lambda b: b["highest_bus_v"])
+
+
+def slower_release(release, other):
+    """``release`` (a :class:`~coildrive.design.result.ReleaseResult`) with each figure
+    taken from ``other`` (the same drive at other points: a cold coil) where it is worse
+    there: the slower release and its corner, the later zero and lockout, the higher
+    switch voltage, the larger energy with its turn-offs."""
+    out = {}
+    if other.time_s > release.time_s:
+        out.update(time_s=other.time_s, worst_corner=other.worst_corner)
+    out.update(zero_time_s=max(release.zero_time_s, other.zero_time_s),
+               lockout_ticks=max(release.lockout_ticks, other.lockout_ticks),
+               peak_switch_voltage_v=max(release.peak_switch_voltage_v, other.peak_switch_voltage_v))
+    if other.energy_j > release.energy_j:
+        out.update(energy_j=other.energy_j, turn_offs=other.turn_offs, worst_turn_off=other.worst_turn_off)
+    return dataclasses.replace(release, **out)
 
 
 @dataclasses.dataclass(frozen=True)
