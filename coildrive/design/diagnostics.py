@@ -157,9 +157,10 @@ def _at_scale(coil, base_l: float, x: float):
     return np.full(np.shape(coil), x * base_l)
 
 
-#: Bisection steps for a boosted peak's trip inductance: 2^-30 of the nominal, far finer
-#: than any tolerance.
-TRIP_FACTOR_STEPS = 30
+#: Bisection steps for a boosted peak's trip inductance: 2^-16 of the nominal, finer than
+#: the 4 digits reported (each step is a rise at every point: on a flux-linkage curve a
+#: stepped run, ~0.09 s CPU over tests/test_boost_flux.py's curve's corners).
+TRIP_FACTOR_STEPS = 16
 
 
 def _boosted_trip_factor(drive: Drive, lp, i_late: float, coil, base_l: float, limit: int,
