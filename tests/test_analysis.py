@@ -271,3 +271,27 @@ def test_capture_without_scaling_is_an_input_error():
     with pytest.raises(InputError) as err:
         analyse(Capture.from_codes([0, 1, 2], sample_rate_hz=1e3))
     assert "amps_per_code" in str(err.value)
+
+
+def test_release_to_a_drop_out_near_the_end_of_a_fast_decay():
+    """A fast release (35 codes a sample) to a drop-out 8 samples before the current is
+    back at zero, after a hold whose PWM is sampled 4 times a period (its ripple reads as
+    noise of many codes, so the crossing is denoised by a wide centred average): the
+    average runs on into the samples after the release, so the crossing is found
+    (hand-worked: (1330 - 300) / 35 = 29.4 samples after the switch-off)."""
+    from coildrive.bench.capture_file import CaptureEvent
+
+    fs, apc = 2e5, 1e-3
+    hold = np.tile([1300, 1370, 1330, 1350], 1000)                 # 50 kHz PWM, 4 samples a period
+    k_on, k_off = 40, 40 + 20 + hold.size                           # little idle: a capture of the hold
+    rise = np.linspace(0, 1300, 20, endpoint=False)
+    decay = np.maximum(1330.0 - 35.0 * (np.arange(60) + 0.5), 0.0)   # sample k at (k + 0.5) / fs
+    codes = np.floor(np.concatenate([np.zeros(k_on), rise, hold, decay, np.zeros(100)]))
+    events = [CaptureEvent(index=k_on, kind=1), CaptureEvent(index=k_on + 20, kind=2),
+              CaptureEvent(index=k_off, kind=3)]
+    cap = Capture.from_codes(codes, sample_rate_hz=fs, amps_per_code=apc, events=events)
+    assert analysis_module._levels(cap.code).sigma > 2.0, "the PWM reads as noise: a wide average"
+    act = analyse(cap, dropout_current=0.3).actuations[0]
+    assert act.release_time_s is not None, act.notes
+    # t_off is half a sample before the OFF sample (docs/capture-format.md); +-1 sample
+    assert act.release_time_s == pytest.approx((1330 - 300) / 35 / fs, abs=1.0 / fs)

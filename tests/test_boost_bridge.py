@@ -225,7 +225,7 @@ def test_design_header_and_emulated_check(tmp_path):
     assert br["boost_return_bound_v"] > 50.4 and br["returned_worst_j"] > 0
     h = (tmp_path / "d.h").read_text()
     assert "COIL_SWITCH_TOPOLOGY               COIL_TOPOLOGY_FULL_BRIDGE" in h
-    assert "#define COIL_BOOST_THRESHOLD_CODE          2905U" in h
+    assert "#define COIL_BOOST_THRESHOLD_CODE          2682U" in h
     assert "the coil across the boost (with the boost switch)" in h
     assert any("wire leg B's high side (Q3) to the main bus" in c for c in d["cautions"])
     emulated_check_passes(tmp_path, path)

@@ -6,7 +6,8 @@ Outside references, named beside each check:
 
 * scipy's ``solve_ivp`` (Radau) of the boosted peak's two loop equations written afresh
   (``L di/dt = v_C - R i``, ``C dv_C/dt = -i``) with a third state for the coil's copper
-  heat ``R_coil i^2``, to the highest trip current seen one conversion late;
+  heat ``R_coil i^2``, to the highest trip current seen one conversion (one PWM period of
+  the hold, docs/firmware.md) late;
 * scipy's ``solve_ivp`` (LSODA) of ``C dT/dt = P(T) - (T - T_a) / R_th`` over many cycles,
   written afresh: the hold's loss from the RL segments between the current-mode thresholds
   (their lengths by the logarithm of the RL step, ``int i^2`` by scipy's ``quad``) through
@@ -68,7 +69,9 @@ def _peak_afresh(drive, supply_r: float, ind: float, r_coil: float, high: bool, 
         return y[0] - trip
     hit.terminal = True
     sol = solve_ivp(f, (0, t_max), [0.0, v0, 0.0], method="Radau", rtol=1e-10, atol=1e-13, events=hit)
-    t_end = min(float(sol.t_events[0][0]) + 1.0 / drive.board.adc.sample_rate, t_max)
+    # the driver converts once a PWM period (docs/firmware.md); the lab board's 84 MHz timer
+    # makes the example's hold frequency exactly (84 MHz / 50 kHz = 1680 counts)
+    t_end = min(float(sol.t_events[0][0]) + 1.0 / drive.hold.frequency, t_max)
     sol = solve_ivp(f, (0, t_end), [0.0, v0, 0.0], method="Radau", rtol=1e-10, atol=1e-13)
     return float(sol.y[2, -1]), t_end
 

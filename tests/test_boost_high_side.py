@@ -219,7 +219,7 @@ def test_design_header_and_simulate(tmp_path):
     assert names["boost_switch_voltage"] and names["boost_threshold"] and names["boost_droop"]
     assert any("boost rail in a boosted peak" in c for c in d["cautions"])
     h = (tmp_path / "d.h").read_text()
-    assert "COIL_TOPOLOGY_HIGH_SIDE" in h and "#define COIL_BOOST_THRESHOLD_CODE          2905U" in h
+    assert "COIL_TOPOLOGY_HIGH_SIDE" in h and "#define COIL_BOOST_THRESHOLD_CODE          2682U" in h
     sim = run_cli("simulate", str(path), "--supply", "12", "--coil-temp", "40", "--hold-time", "2 ms",
                   "--csv", str(tmp_path / "s.csv"))
     assert sim.returncode == 0, sim.stderr

@@ -8,7 +8,7 @@ Outside references, named beside each check:
   written afresh here: the boost capacitor into the coil, ``L di/dt = v_C - (R_on + R_b)
   i``, ``C dv_C/dt = -i + P/v_C`` (the converter charging it at a constant power ``P``
   from switch-on until ``v_C`` is back at ``V_b``, taking ``P/eta`` from the rail: its
-  input over its efficiency, common practice), the peak ending one ADC conversion after the
+  input over its efficiency, common practice), the peak ending one conversion (a PWM period) after the
   true current reaches the threshold over the sense chain's reading factor, then the PWM
   hold from the main supply (on ``V - R_on i``; off through the diode and the bypass
   switch, ``-(V_d + R_off i)``, stopping at zero), the rail carrying the converter's input
@@ -86,7 +86,7 @@ def _simulate(drv, d, v, r_f, l_f, v_b, cap, reading, periods=PERIODS, n=30):
     reached.terminal, reached.direction = True, 1
     sol = solve_ivp(peak_rhs, (0, 1.0), [0.0, v_b], method="LSODA", rtol=1e-10, atol=1e-12, events=reached,
                     dense_output=True)
-    t_end = sol.t[-1] + 1 / b.adc.sample_rate                  # seen one conversion late
+    t_end = sol.t[-1] + period          # seen one conversion (a PWM period: docs/firmware.md) late
     sol = solve_ivp(peak_rhs, (0, t_end), [0.0, v_b], method="LSODA", rtol=1e-10, atol=1e-12, dense_output=True)
     tt = np.linspace(0, t_end, 200)
     i, v_c = sol.y[0, -1], sol.y[1, -1]

@@ -559,7 +559,12 @@ def _measure(rd: _Reader, cut: _Cut, number: int, lv: _Levels, sense: str,
             t_off = (idx[off] - 0.5) / fs
             tr, cr = rd.t(off, r_end), rd.c[off:r_end]
             if dropout is not None:
-                hit = _level_time(tr, _denoise(cr, lv.sigma), dropout / apc, False, 1.0 / fs)
+                # denoised past the end (as the peak's, above): a centred average must not
+                # hold its last full window's value over a drop-out reached within half a
+                # window of the end (a fast release, or noise inflated by a PWM sampled a
+                # few times a period)
+                smooth_r = _denoise(rd.c[off:min(r_end + 7, n)], lv.sigma)[:r_end - off]
+                hit = _level_time(tr, smooth_r, dropout / apc, False, 1.0 / fs)
                 if hit is None:
                     notes.append(f"the current did not fall to the drop-out current {dropout:.4g} A")
                 else:

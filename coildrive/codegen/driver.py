@@ -264,7 +264,7 @@ CORTEX_CYCLES = {
 }
 CORTEX_INSTRUCTIONS = {
     "cortex-m0plus": {"adc_isr": 176, "pwm_isr": 4, "tick": 373, "threshold_isr": 63,
-                      "adc_isr_closed_loop": 167, "adc_isr_bridge": 195, "adc_isr_boost": 194,
+                      "adc_isr_closed_loop": 167, "adc_isr_bridge": 195, "adc_isr_boost": 195,
                       "adc_isr_mixed": 203},
     "cortex-m3": {"adc_isr": 147, "pwm_isr": 2, "tick": 305, "threshold_isr": 53,
                   "adc_isr_closed_loop": 149, "adc_isr_bridge": 160, "adc_isr_boost": 159,

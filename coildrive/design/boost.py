@@ -5,8 +5,10 @@ main supply. Physics in :mod:`coildrive.model.boost`.
 * The threshold is ``pull_in.current_margin`` x the pull-in current; its code is the
   smallest one every sense chain (resistor and amplifier tolerances) reaches only at or
   above it, so the real trip lies between the threshold and the code's current as a
-  low-reading chain sees it -- and a threshold compared once per conversion is seen up to
-  one conversion late (common practice), which the highest end current includes.
+  low-reading chain sees it -- and the driver compares it once a conversion, and converts
+  once a PWM period (docs/firmware.md), so it is seen up to one PWM period of the hold
+  timer late (:func:`conversion_period`): the end current, the switch voltage, the
+  time-out, the energy and the peak's heat all include it.
 * The slow side (pull-in, force, time-out): the boost at its lowest (``boost`` less
   ``boost_tolerance``, the capacitance less its tolerance) with the envelope's hot coil --
   the capacitor's droop is in the rise. The time-out is the worst corner's time to the
@@ -28,6 +30,7 @@ from ..model.eddy import EddyCoil
 from .corners import CornerGrid
 from .envelope import reading_factors
 from .result import BoostResult, Check
+from .timer import timer_for
 
 
 def at_boost(drive: Drive, v_b, c, r_on, inductance) -> model.Boost:
@@ -48,10 +51,12 @@ def _boost(drive: Drive, lp, inductance, high: bool) -> model.Boost:
                     s.boost_capacitance * (1.0 + sign * s.boost_capacitance_tolerance), lp.r_on, inductance)
 
 
-def rise_time(drive: Drive, lp, i_target, inductance) -> np.ndarray:
-    """Time (s) to ``i_target`` A from the boost at its lowest, at the points of ``lp``."""
-    b = _boost(drive, lp, inductance, False)
-    return model.of(b).threshold_time(i_target, b)
+def rise_time(drive: Drive, lp, i_target, inductance, high: bool = False, sensed: bool = False) -> np.ndarray:
+    """Time (s) to ``i_target`` A from the boost at its lowest (``high``: at its highest),
+    at the points of ``lp``; ``sensed``: of the terminal current (what the sense reads;
+    with an eddy term it leads the magnetising current), else of the magnetising current."""
+    b = _boost(drive, lp, inductance, high)
+    return model.of(b).threshold_time(i_target, b, sensed=sensed)
 
 
 def rise_current(drive: Drive, lp, t, inductance) -> np.ndarray:
@@ -118,11 +123,21 @@ def peak_in_force(design, supply: float, coil_temp: float, r_factor: float = 1.0
     return firmware_peak(design, supply, coil_temp, r_factor, l_factor)
 
 
+def conversion_period(drive: Drive) -> float:
+    """The longest time (s) between two of the driver's conversions in the peak: one PWM
+    period of the hold timer (the driver converts once a PWM period, docs/firmware.md), at
+    the frequency the timer really makes (:func:`~coildrive.design.timer.timer_for`: the
+    prescaler and period of the drive, or the system's shared timer). Not the ADC's
+    ``sample_rate``, the bench link's streaming rate."""
+    return 1.0 / timer_for(drive).frequency_hz
+
+
 def _seen(drive: Drive, b: model.Boost) -> np.ndarray:
     """When the firmware sees the threshold at the latest (s; ``inf`` where never): the
-    highest trip current (the chain reading low), one conversion late. (With an eddy
-    term the sense sees the terminal current, which leads the magnetising current.)"""
-    return model.of(b).threshold_time(threshold(drive)[2], b, sensed=True) + 1.0 / drive.board.adc.sample_rate
+    highest trip current (the chain reading low), one conversion (:func:`conversion_period`)
+    late. (With an eddy term the sense sees the terminal current, which leads the
+    magnetising current.)"""
+    return model.of(b).threshold_time(threshold(drive)[2], b, sensed=True) + conversion_period(drive)
 
 
 def slowest_peak(drive: Drive, lp) -> np.ndarray:

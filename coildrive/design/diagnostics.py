@@ -14,6 +14,13 @@ lowest and the current highest), with a margin; :func:`rise_check` also says bel
 inductance it trips at every corner. A short that develops while the coil is held is not
 seen until the next switch-on (the over-current check covers the hard short).
 
+A boosted peak (``[supply] boost``) rises from the boost, not the main supply: the healthy
+rise is the boost capacitor's series RLC (:mod:`coildrive.design.boost`, the boost at its
+highest for the fastest), the limit is not scaled by the supply reading (the supply sense
+reads the main bus), and the trip inductance is bisected on the same rise (the boost at
+its lowest). Timed on the main supply's slower rise, the limit would fault every healthy
+boosted rise.
+
 With an ``[armature]``, :func:`seat_check` gives the driver's seat detector its codes
 (the dip's fall and climb) and the time the climb takes after the seat, so that the
 armature's latest healthy seat is seen before the stuck check gives up.
@@ -31,6 +38,7 @@ from ..model.eddy import EddyCoil
 from ..model.circuit import open_inductance
 from ..model.flux import FluxCoil
 from ..model.rl import rise_time
+from . import boost
 from .corners import CornerGrid
 from .envelope import reading_factors, supply_codes
 from .evaluate import PointResults
@@ -75,8 +83,12 @@ def rise_check(drive: Drive, grid: CornerGrid, res: PointResults, conversion_hz:
             rising = open_inductance(drive, res.l_factor)
         ind = rising.with_scale(np.broadcast_to(np.asarray(rising.scale, float), v.shape))
     weakest = float(np.min(v / r))
+    boosted = drive.supply.boosted
+    if boosted:   # a boosted peak ends at the boost's threshold
+        weakest = min(weakest, boost.threshold(drive)[0])
     code = math.floor(RISE_FRACTION * weakest * low / lsb_a)
-    by_supply = board.supply_sense is not None
+    # a boosted peak rises from the boost, which the supply sense does not read: no scaling
+    by_supply = board.supply_sense is not None and not boosted
     if by_supply:
         s_low, s_high = (np.maximum(x, 1) for x in supply_codes(drive, v))
     else:
@@ -96,6 +108,9 @@ def rise_check(drive: Drive, grid: CornerGrid, res: PointResults, conversion_hz:
         t = np.asarray(eddy.terminal_rise_time(i_early, v, r, ind), float)
     else:
         t = np.asarray(rise_time(i_early, 0.0, v, r, ind), float)
+    coil = e if eddy_coil else ind
+    if boosted:   # the boost at its highest (the fastest rise), its capacitor's droop in it
+        t = np.asarray(boost.rise_time(drive, lp, i_early, coil, high=True, sensed=True), float)
     product = t * conversion_hz * s_low
     k = int(np.argmin(product))
     fastest = float(t[k])
@@ -105,7 +120,9 @@ def rise_check(drive: Drive, grid: CornerGrid, res: PointResults, conversion_hz:
     # turns lower it too, which only makes the rise faster)
     i_late = (code + 1 + NOISE_CODES) * lsb_a / low
     with np.errstate(divide="ignore", invalid="ignore"):
-        if eddy_coil:   # the time scales with the magnetising branch: s per unit of scale
+        if boosted:
+            factor = _boosted_trip_factor(drive, lp, i_late, coil, base_l, limit, conversion_hz)
+        elif eddy_coil:   # the time scales with the magnetising branch: s per unit of scale
             per_l = np.asarray(eddy.terminal_rise_time(i_late, v, r, ind), float) / scale
             factor = float(max(np.min((limit / s_high - 1.0) / conversion_hz / per_l), 0.0))
         elif flux_coil:   # the time scales with the curve's scale: s per unit of scale
@@ -128,6 +145,46 @@ def rise_check(drive: Drive, grid: CornerGrid, res: PointResults, conversion_hz:
                      noise_codes=NOISE_CODES, fastest_s=fastest,
                      fastest_product=float(product[k]), fastest_corner=grid.label(k),
                      inductance_h=float(base_l), trip_inductance_factor=factor, why_off=why)
+
+
+def _at_scale(coil, base_l: float, x: float):
+    """``coil`` (an array of H, a :class:`FluxCoil` or an :class:`EddyCoil`) at ``x`` times
+    its nominal inductance (``base_l`` H) or curve, at every point."""
+    if isinstance(coil, EddyCoil):
+        return EddyCoil(_at_scale(coil.magnetising, base_l, x), coil.resistance)
+    if isinstance(coil, FluxCoil):
+        return coil.with_scale(np.full(np.shape(coil.scale), x))
+    return np.full(np.shape(coil), x * base_l)
+
+
+#: Bisection steps for a boosted peak's trip inductance: 2^-16 of the nominal, finer than
+#: the 4 digits reported (each step is a rise at every point: on a flux-linkage curve a
+#: stepped run, ~0.09 s CPU over tests/test_boost_flux.py's curve's corners).
+TRIP_FACTOR_STEPS = 16
+
+
+def _boosted_trip_factor(drive: Drive, lp, i_late: float, coil, base_l: float, limit: int,
+                         conversion_hz: float) -> float:
+    """The inductance (x the nominal) below which a boosted peak's rise check trips surely:
+    the boost at its lowest (the slowest rise) reaches ``i_late`` A within ``limit`` less
+    one conversions (a conversion late) at every point. The boost's series RLC rise is
+    not proportional to the inductance (its capacitor droops), so the factor is bisected
+    on the closed form (the rise time grows with the inductance)."""
+    t_max = (limit - 1.0) / conversion_hz
+
+    def trips(x: float) -> bool:
+        t = np.asarray(boost.rise_time(drive, lp, i_late, _at_scale(coil, base_l, x), sensed=True), float)
+        return bool(np.all(t <= t_max))
+
+    lo, hi = 0.0, 1.0
+    if t_max <= 0.0:
+        return 0.0
+    if trips(hi):
+        return hi
+    for _ in range(TRIP_FACTOR_STEPS):
+        mid = 0.5 * (lo + hi)
+        lo, hi = (mid, hi) if trips(mid) else (lo, mid)
+    return lo
 
 
 def dip_codes(drive: Drive, depths) -> int:

@@ -161,7 +161,7 @@ def _boost_rows(d: Design) -> list:
                         f"the boost at its lowest drives at most {b.reachable_current_a:.4g} A")]
     rows += [
         ("  longest peak", _ms(b.time_to_threshold_s),
-         f"until the threshold is seen (trip by {b.trip_max_a:.4g} A, one conversion late) at "
+         f"until the threshold is seen (trip by {b.trip_max_a:.4g} A, one conversion = one PWM period late) at "
          f"{b.time_to_threshold_corner}; fastest to {b.threshold_a:.4g} A {_ms(b.fastest_time_s)}"),
         ("  peak time-out", _ms(b.timeout_s), f"{b.timeout_ticks} ticks = longest peak x {d.pull_in.margin:g}, +1 tick"),
         ("  boost at end of peak", f">= {b.lowest_boost_v:.4g} V",

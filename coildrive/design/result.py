@@ -499,10 +499,10 @@ class BoostResult:
     (V), its capacitor (F; 0 = an ideal source) and path resistance (ohm), charging power
     (W; 0 = not given); the threshold (A), its ADC code and the highest true current that
     code trips at (A); the worst corner's time until the firmware sees the threshold (s:
-    the highest trip current, one conversion late, the boost at its lowest; ``None`` when a
+    the highest trip current, one conversion -- one PWM period -- late, the boost at its lowest; ``None`` when a
     corner never gets there: ``reachable_current_a`` is the most the boost at its lowest
     drives) and the fastest time to the threshold; the time-out (ticks, s); the highest
-    current at the end of the peak (A; one conversion late); the boost capacitor at the end
+    current at the end of the peak (A; one PWM period late); the boost capacitor at the end
     of the peak at its lowest (V), the main supply there and the droop from the lowest
     charge (V); the energy drawn per
     actuation (J), the capacitor's stored energy at full charge (J), the recharge time at
