@@ -284,12 +284,12 @@ def test_what_stays_refused_is_refused_in_one_line(tmp_path):
     text = EXAMPLE.read_text().replace('board = "lab-m32-zener"',
                                        f'board = "{EXAMPLES.parent / "boards" / "lab-m32-zener.toml"}"')
     cases = {
-        "hold.mode": text.replace('frequency = "20 kHz"', 'frequency = "20 kHz"\nmode = "current"'),
+        "hold.mode": text.replace('frequency = "60 kHz"', 'frequency = "60 kHz"\nmode = "current"'),
         "duty": text + '\n[duty]\non_time = "5 ms"\noff_time = "20 ms"\n',
     }
     bridge = Path(_on_bridge(tmp_path)).read_text()
     cases["armature.restitution"] = text.replace('damping = "1 N*s/m"', 'damping = "1 N*s/m"\nrestitution = 0.3')
-    cases["hold.fast_fraction"] = bridge.replace('frequency = "20 kHz"', 'frequency = "20 kHz"\nfast_fraction = 0.3')
+    cases["hold.fast_fraction"] = bridge.replace('frequency = "60 kHz"', 'frequency = "60 kHz"\nfast_fraction = 0.3')
     for want, body in cases.items():
         path = tmp_path / "x.toml"
         path.write_text(body)

@@ -33,6 +33,7 @@ from ..model.armature import ArmatureParams
 from ..model.armature_boost import boost_energy, boost_params, boosted_pull_in
 from ..model.armature_runs import PullInBatch, pull_in
 from ..model.rl import rise_current
+from .boost import conversion_period
 
 
 @dataclass(frozen=True)
@@ -69,12 +70,13 @@ def _boost(drive: Drive, p: ArmatureParams, high: bool) -> ArmatureParams:
 
 def _end(drive: Drive, pb: ArmatureParams, pin: PullInBatch, i_trip: float):
     """``(end of the peak s, the most current then A, the boost then V, energy J)`` one
-    conversion after ``pin``'s trip at ``i_trip`` A: the open coil's stiff rise at the
+    conversion (a PWM period, :func:`coildrive.design.boost.conversion_period`) after
+    ``pin``'s trip at ``i_trip`` A: the open coil's stiff rise at the
     boost's voltage bounds the current over it (with an eddy term the magnetising current's
     rise through the loop's Thevenin pair, and the terminal current ``(V_b + R_e i_m)/(R +
     R_e)`` from it); the capacitor gives at most that current.
     Where the trip never comes: ``inf``, ``i_trip``, the boost's full voltage, NaN."""
-    dt = 1.0 / drive.board.adc.sample_rate
+    dt = conversion_period(drive)
     hit = np.isfinite(pin.trip_time)
     y = np.where(hit, pin.trip_state, 0.0)
     if pb.eddy is None:
