@@ -23,7 +23,7 @@ import numpy as np
 import pytest
 from typer.testing import CliRunner
 
-from rail_reference import assert_staggered_within_limit, linear_tail, simulate_csv
+from rail_reference import assert_staggered_within_limit, comparator_run, linear_tail, simulate_csv
 
 from coildrive.cli import app
 from coildrive.config import load_drive
@@ -64,14 +64,11 @@ def _simulate(drv, cm, v, temp, r_f, l_f, reading, peak, cycles=CYCLES, n=40):
     the delay past it; hysteretic, off until it falls to the lower and the delay past it,
     else off for the fixed off time -- by ``solve_ivp`` between the comparator's events.
     Returns the time grid and the terminal (sensed) current."""
-    from scipy.integrate import solve_ivp
-
     c, b = drv.coil, drv.board
     r_coil = c.resistance * (1 + 0.00393 * (temp - c.reference_temp)) * r_f      # IEC 60028
     r_on = r_coil + drv.switch.on_resistance + b.sense.resistance
     r_off = r_coil + b.sense.resistance
     v_f, r_e, ind = drv.freewheel.diode_drop, c.eddy_resistance, c.inductance * l_f
-    lo, hi, delay = cm["lower_a"], cm["upper_a"], cm["sense_delay_s"]
 
     def terminal(on, im):
         return (v + r_e * im) / (r_on + r_e) if on else np.maximum((r_e * im - v_f) / (r_off + r_e), 0.0)
@@ -82,33 +79,8 @@ def _simulate(drv, cm, v, temp, r_f, l_f, reading, peak, cycles=CYCLES, n=40):
             max(-r_e * y[0], -r_e * (r_off * y[0] + v_f) / (r_off + r_e))
         return [vl / ind]
 
-    ts, cs = [], []
-
-    def run(t0, im, on, t_max, level=None):
-        """From ``t0`` with ``im`` for at most ``t_max`` s, or until the reading crosses
-        ``level`` (up while on, down while off); returns the end time and current."""
-        def ev(_t, y, _on):
-            return reading * terminal(on, y[0]) - level
-        ev.terminal, ev.direction = True, (1 if on else -1)
-        if level is not None and ev(t0, [im], on) * ev.direction >= 0:
-            return t0, im                                  # already past: trips at once
-        sol = solve_ivp(rhs, (t0, t0 + t_max), [im], method="LSODA", rtol=1e-10, atol=1e-13, args=(on,),
-                        events=None if level is None else ev, dense_output=True)
-        tt = np.linspace(t0, sol.t[-1], n)
-        ts.append(tt)
-        cs.append(terminal(on, sol.sol(tt)[0]))
-        return sol.t[-1], float(sol.y[0, -1])
-
-    t, im = run(0.0, 0.0, True, peak) if peak > 0 else (0.0, 0.0)
-    for _ in range(cycles):
-        t, im = run(t, im, True, 1.0, hi)           # on to the upper threshold (read)
-        t, im = run(t, im, True, delay)             # and the delay past it
-        if cm["control"] == "hysteretic":
-            t, im = run(t, im, False, 1.0, lo)      # off to the lower
-            t, im = run(t, im, False, delay)
-        else:
-            t, im = run(t, im, False, cm["off_time_s"])
-    return np.concatenate(ts), np.concatenate(cs)
+    t, im, on, _ = comparator_run(rhs, terminal, cm, reading, peak, cycles, n=n)
+    return t, np.where(on, terminal(True, im), terminal(False, im))
 
 
 def _branch(t, b):

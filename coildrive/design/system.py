@@ -131,6 +131,8 @@ def _branch_parts(t, b: dict):
         return rise, flux_bound.table_current(left, b["tail_flux_wb"], b["tail_current_a"])
     tail = b["hold_top_a"] + np.max([e * np.exp(-age * b["slow_resistance_ohm"] / l)
                                      for e, l in zip(b["excess_a"], b["tail_inductance_h"])], axis=0)
+    if "tail_cap_a" in b:             # a closed loop's: never above its clamp's top (_two_period_top)
+        tail = np.minimum(tail, b["tail_cap_a"])
     if "converter_until_s" in b:      # a boosted peak's converter, recharging its capacitor
         tail = tail + np.where(t < b["converter_until_s"], b["converter_a"], 0.0)
     return rise, tail
@@ -343,6 +345,12 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             i_pe = np.array([bottom + tail["excess_a"]])
             ends = np.array([l_min, tail["l_max_h"] * float(scale.max())])
             peak_end["a"] = float(currents[-1])
+        if d.hold.regulation == "closed_loop" and not (drive.armature is not None or r_eddy is not None
+                                                       or curve is not None or drive.supply.boosted):
+            # a linear coil under its loop, at most the clamp's PWM from the peak's end:
+            # never above the larger of its orbit's top and two periods' rise (_two_period_top)
+            cap = max(hold_top, _two_period_top(float(i_pe[0]), hi, r_on, l_min, 1.0 / f))
+            branch.update({"tail_cap_a": cap, "top_a": min(cap, hold_top + max(0.0, float(i_pe[0]) - bottom))})
         branches.append({**branch, "peak_end_a": float(peak_end.get("a", i_pe[0])), "hold_top_a": hold_top,
                          "excess_a": [max(0.0, float(x) - bottom) for x in i_pe],
                          "tail_inductance_h": [float(x) for x in ends[1:]],
@@ -455,8 +463,7 @@ def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bott
     if d.hold.mode == "current":
         coil_top = hold_top + max(0.0, i_end - bottom)
     else:
-        a = v_hi / r_on
-        coil_top = max(hold_top, i_end + max(0.0, a - i_end) * -math.expm1(-2.0 / d.hold.frequency_hz * r_on / l_min))
+        coil_top = max(hold_top, _two_period_top(i_end, v_hi, r_on, l_min, 1.0 / d.hold.frequency_hz))
     out = {"boost_v": bst.boost_max_v, "resistance_ohm": r_on, "inductance_h": l_min, "coil_top_a": coil_top,
            "boost_efficiency": s.boost_efficiency}
     if bst.capacitance_f > 0:
@@ -468,6 +475,19 @@ def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bott
                     "feed_end_a": bst.end_current_max_a})
         out["top_a"] = max(out["feed_ratio"] * bst.end_current_max_a, coil_top)
     return out
+
+
+def _two_period_top(i0: float, v: float, r: float, l: float, period: float) -> float:
+    """The most (A) a linear coil's current reaches over two PWM periods ``period`` s on at
+    ``v`` V through ``r`` ohm and ``l`` H from ``i0`` A: ``i0 + (V/R - i0)(1 - exp(-2 T
+    R/L))`` (at the lowest ``R`` and ``L`` the largest; it grows with ``i0``). Under a PWM of
+    constant duty whose period map is increasing and contracts onto its orbit (start ``B``,
+    top ``H``), a current handed over at ``i0`` at any phase reaches its first period start
+    within a period at most at that rise, every later start is at most ``max(that, B)``, and
+    each period's top is at most ``max(H, the rise)`` (the top is 1-Lipschitz in the start):
+    so the current never passes ``max(H, _two_period_top)`` (docs/design-method.md, "Several
+    channels")."""
+    return i0 + max(0.0, v / r - i0) * -math.expm1(-2.0 * period * r / l)
 
 
 def _boost_rise(t, b: dict):
@@ -1007,12 +1027,11 @@ def _refuse(system: System, ch) -> None:
     an eddy term or both) or a flux-linkage curve (no armature), on one switch or a full
     bridge, under a voltage-mode (fixed, supply-table or closed-loop) hold or a
     current-mode one (with an eddy term, on a linear coil without an armature; no moving
-    armature; not on a full bridge), or a latching coil, or a boosted peak. Anything else
-    is refused in one line: a curve with a moving armature (the closing armature's current
-    is not proved to stay under the open curve's rise, docs/design-method.md, "A
-    flux-linkage curve"), a current-mode hold with a moving armature, an eddy term under a
-    current-mode hold on a curve, a full bridge's current-mode or closed-loop hold, a
-    boosted peak with an eddy term, and a boosted peak without
+    armature), or a latching coil, or a boosted peak. Anything else is refused in one
+    line: a curve with a moving armature (the closing armature's current is not proved to
+    stay under the open curve's rise, docs/design-method.md, "A flux-linkage curve"), a
+    current-mode hold with a moving armature, an eddy term under a current-mode hold on a
+    curve, a boosted peak with an eddy term, and a boosted peak without
     ``supply.boost_efficiency`` (its converter's draw)."""
     d = ch.drive
     why = None
@@ -1023,9 +1042,6 @@ def _refuse(system: System, ch) -> None:
     elif d.coil.eddy_resistance and d.hold.mode == "current" and d.coil.flux_current:
         key, why = ("coil.eddy_resistance",
                     "an eddy-current term with a current-mode hold on a flux-linkage curve")
-    elif d.switch.topology == "full_bridge" and d.hold.regulation in ("current", "closed_loop"):
-        key = "hold.mode" if d.hold.regulation == "current" else "hold.regulation"
-        why = f"a full bridge's {'current-mode' if d.hold.regulation == 'current' else 'closed-loop'} hold"
     elif d.supply.boosted and d.coil.eddy_resistance:
         key, why = "supply.boost", "a boosted peak with an eddy-current term"
     elif d.supply.boosted and not d.supply.boost_efficiency > 0:
@@ -1037,8 +1053,7 @@ def _refuse(system: System, ch) -> None:
                          "in a system yet; expected a linear coil (with an [armature], an eddy term or both) "
                          "or a flux-linkage curve (no [armature]), one switch or a full bridge and a voltage-mode "
                          "fixed, supply-table or closed-loop hold, a current-mode hold (no [armature]; with an "
-                         "eddy term on a linear coil; one switch), or a latching coil; a boosted peak without an "
-                         "eddy term")
+                         "eddy term on a linear coil), or a latching coil; a boosted peak without an eddy term")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:
