@@ -1026,19 +1026,16 @@ def _refuse(system: System, ch) -> None:
     """What the rail's current bound is made for: a linear coil (with a moving armature,
     an eddy term or both) or a flux-linkage curve (no armature), on one switch or a full
     bridge, under a voltage-mode (fixed, supply-table or closed-loop) hold or a
-    current-mode one (with an eddy term, on a linear coil without an armature; no moving
-    armature), or a latching coil, or a boosted peak. Anything else is refused in one
-    line: a curve with a moving armature (the closing armature's current is not proved to
-    stay under the open curve's rise, docs/design-method.md, "A flux-linkage curve"), a
-    current-mode hold with a moving armature, an eddy term under a current-mode hold on a
-    curve, a boosted peak with an eddy term, and a boosted peak without
+    current-mode one (with an eddy term only on a linear coil), or a latching coil, or a
+    boosted peak. Anything else is refused in one line: a curve with a moving armature
+    (the closing armature's current is not proved to stay under the open curve's rise,
+    docs/design-method.md, "A flux-linkage curve"), an eddy term under a current-mode hold
+    on a curve, a boosted peak with an eddy term, and a boosted peak without
     ``supply.boost_efficiency`` (its converter's draw)."""
     d = ch.drive
     why = None
     if d.coil.flux_current and d.armature is not None:
         key, why = "armature", "a moving armature with a flux-linkage curve"
-    elif d.armature is not None and d.hold.mode == "current":
-        key, why = "hold.mode", "a current-mode hold with an [armature]"
     elif d.coil.eddy_resistance and d.hold.mode == "current" and d.coil.flux_current:
         key, why = ("coil.eddy_resistance",
                     "an eddy-current term with a current-mode hold on a flux-linkage curve")
@@ -1052,8 +1049,8 @@ def _refuse(system: System, ch) -> None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
                          "in a system yet; expected a linear coil (with an [armature], an eddy term or both) "
                          "or a flux-linkage curve (no [armature]), one switch or a full bridge and a voltage-mode "
-                         "fixed, supply-table or closed-loop hold, a current-mode hold (no [armature]; with an "
-                         "eddy term on a linear coil), or a latching coil; a boosted peak without an eddy term")
+                         "fixed, supply-table or closed-loop hold, a current-mode hold (with an eddy term on a "
+                         "linear coil), or a latching coil; a boosted peak without an eddy term")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:
