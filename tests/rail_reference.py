@@ -174,3 +174,21 @@ def comparator_run(rhs, sensed, cm, reading, peak, cycles, y0=0.0, n=40):
             t, y = run(t, y, False, cm["off_time_s"])
     run.samples = lambda: (np.concatenate(ts), np.concatenate(ys), np.concatenate(ons))
     return (*run.samples(), (t, y, run))
+
+
+def simulated_last_channel(system, folder, tmp_path, branch, hold_time: float, settle: float,
+                           coil: bool = False) -> np.ndarray:
+    """``simulate SYSTEM.toml`` (:func:`simulate_csv`, 28 V, cold, nominal coil) of the
+    system file ``folder``/sys.toml (``design --json``'s ``system``): its last channel's draw
+    (its current while its switch is on; with ``coil`` its coil current) never above its one
+    branch ``branch(t, b)`` on the CSV's grid and above 0.55 A at its top, its hold switching
+    on and off from ``settle`` s after the peak on; returns the CSV."""
+    csv = simulate_csv(folder / "sys.toml", tmp_path, hold_time)
+    ch = system["channels"][-1]
+    (b,) = ch["bound"]["branches"]
+    t = csv[:, 0] - ch["offset_s"]
+    draw = csv[:, 7] if coil else csv[:, 7] * csv[:, 13]
+    assert draw.max() > 0.55 and np.all(draw <= branch(t, b) + 1e-9), float(np.max(draw - branch(t, b)))
+    late = t > b["peak_s"] + settle
+    assert np.any(csv[late, 13] == 0) and np.any(csv[late, 13] == 1)
+    return csv

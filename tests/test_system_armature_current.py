@@ -24,7 +24,7 @@ from typer.testing import CliRunner
 
 from armature_equations import equations
 from conftest import run_cli
-from rail_reference import assert_staggered_within_limit, linear_tail, simulate_csv
+from rail_reference import assert_staggered_within_limit, linear_tail, simulated_last_channel
 from test_armature_current_mode import _point, reference
 from test_system_armature import ARMATURE, _rise
 
@@ -98,14 +98,7 @@ def test_simulate_and_the_channels_device(doc, tmp_path):
     --channel purge2`` (a real subprocess) serves its device. Both run the model's own
     actuation: plumbing, not physics."""
     system, folder = doc
-    csv = simulate_csv(folder / "sys.toml", tmp_path, 0.01)
-    ch = system["channels"][-1]
-    (b,) = ch["bound"]["branches"]
-    t = csv[:, 0] - ch["offset_s"]
-    draw = csv[:, 7] * csv[:, 13]
-    assert draw.max() > 0.55 and np.all(draw <= _branch(t, b) + 1e-9), float(np.max(draw - _branch(t, b)))
-    late = (t > b["peak_s"] + 0.008) & (t < b["peak_s"] + 0.01)       # past the peak's excess
-    assert np.any(csv[late, 13] == 0) and np.any(csv[late, 13] == 1)
+    simulated_last_channel(system, folder, tmp_path, _branch, 0.01, 0.008)     # past the peak's excess
     r = run_cli("emulate", str(folder / "sys.toml"), "--channel", "purge2", "--duration", "0.3")
     assert r.returncode == 0 and r.stdout.startswith("/dev/"), r.stderr
     assert "channel purge2" in r.stderr, r.stderr

@@ -26,7 +26,7 @@ import pytest
 from typer.testing import CliRunner
 
 from conftest import run_cli
-from rail_reference import assert_staggered_within_limit, comparator_run, linear_tail, simulate_csv
+from rail_reference import assert_staggered_within_limit, comparator_run, linear_tail, simulated_last_channel
 
 from coildrive.cli import app
 from coildrive.config import load_drive
@@ -135,14 +135,7 @@ def test_simulate_and_the_channels_device(doc, tmp_path):
     ``emulate SYSTEM.toml --channel purge2`` (a real subprocess) serves its device. Both
     run the model's own actuation: plumbing, not physics."""
     system, folder = doc
-    csv = simulate_csv(folder / "sys.toml", tmp_path, 0.012)
-    ch = system["channels"][-1]
-    (b,) = ch["bound"]["branches"]
-    t = csv[:, 0] - ch["offset_s"]
-    coil = csv[:, 7]
-    assert coil.max() > 0.55 and np.all(coil <= _branch(t, b) + 1e-9), float(np.max(coil - _branch(t, b)))
-    late = (t > b["peak_s"] + 0.009) & (t < b["peak_s"] + 0.012)     # past the peak's excess
-    assert np.any(csv[late, 13] == 0) and np.any(csv[late, 13] == 1)
+    csv = simulated_last_channel(system, folder, tmp_path, _branch, 0.012, 0.009, coil=True)
     others = csv[:, 2:7] * csv[:, 8:13]                 # the one-switch channels' draw while on
     assert (csv[:, 1] - others.sum(axis=1)).min() < 0     # the bridge's fast decay, negative
     r = run_cli("emulate", str(folder / "sys.toml"), "--channel", "purge2", "--duration", "0.3")

@@ -311,8 +311,17 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             # coil's highest inductance: one part
             i_pe, ends = np.array([float(_branch_rise(tp, branch))]), np.array([l_min, l_max])
         elif r_eddy is not None and curve is not None:
+            ripple = None
+            if current is not None:
+                # the magnetising current's hold top and trip (J); after the peak on for at
+                # most the delay, the flux rising by at most V_th delay / s, then off
+                top_m, j = _eddy_current_top(d.hold.thresholds, top_cold, envelope.reading_factors(drive)[0])
+                top_m, bottom = float(np.max(top_m)), float(np.min(j))
+                ripple = hi * r_eddy / (r_on + r_eddy) * d.hold.thresholds.delay_s / float(scale.min())
+            else:
+                top_m = float(np.max(orbit.i_max))
             branch.update(_eddy_curve_branch(flux.FluxCoil(curve, float(scale.min())), hi, r_on, r_eddy, tp,
-                                             float(np.max(orbit.i_max)), bottom))
+                                             top_m, bottom, ripple))
             r_slow = r_slow_eddy
             hold_top, bottom = branch.pop("hold_top_a"), 0.0
             i_pe = np.array([branch.pop("excess_a")])
@@ -523,7 +532,7 @@ def _armature_rise(arm, supply: float, r_on: float, lc_low: float, lc_high: floa
 
 
 def _eddy_curve_branch(coil, v: float, r: float, r_e: float, peak_s: float, top_m: float,
-                       bottom_m: float) -> dict:
+                       bottom_m: float, ripple: float | None = None) -> dict:
     """The keys of a branch with an eddy term on a flux-linkage curve (``coil`` at its
     lowest scale), at ``v`` V through the coldest on-loop's ``r`` ohm, ``r_e`` ohm across
     the coil, a peak ``peak_s`` s long, the hold orbit's highest magnetising top ``top_m``
@@ -539,11 +548,15 @@ def _eddy_curve_branch(coil, v: float, r: float, r_e: float, peak_s: float, top_
     most ``max(i_m, g(i_m))`` of that (off, it is below ``i_m``): ``tail_flux_wb`` /
     ``tail_current_a``, ``hold_top_a`` its value at ``D = 0``, ``excess_a`` ``D0/L_min``
     (the lowest incremental inductance from ``top_m`` up to the reach: both parts of the
-    max grow with slope at most 1)."""
+    max grow with slope at most 1). Under a current-mode hold ``ripple`` (Wb, unscaled)
+    replaces ``psi(top_m) - psi(bottom_m)``: the flux's rise over the delay the switch
+    stays on after the peak, before it is off down to the lower threshold, with the
+    excess falling through the off-loop's Thevenin resistance (``top_m`` the on-times'
+    highest top, ``bottom_m`` the trip ``J``)."""
     v_th, r_th = v * r_e / (r + r_e), r * r_e / (r + r_e)
     times, i_m = flux_bound.rise_table(coil, v_th, r_th, peak_s)
     curve = coil.curve
-    spread = float(curve.psi(top_m)) - float(curve.psi(min(bottom_m, top_m)))
+    spread = float(curve.psi(top_m)) - float(curve.psi(min(bottom_m, top_m))) if ripple is None else ripple
     tail = flux_bound.tail_excess(curve, float(i_m[-1]), top_m, spread)
     deltas, cur = tail["table"]
     terminal = np.maximum(cur, (v + r_e * cur) / (r + r_e))
@@ -619,6 +632,31 @@ def _delay_orbit_top(th, cold) -> np.ndarray:
     return orbit.i_max
 
 
+def _eddy_current_top(th, cold, low: float) -> tuple[np.ndarray, np.ndarray]:
+    """``(top, J)`` (A, magnetising, per cold loop) of a current-mode hold with an eddy
+    term (:func:`_eddy_current_hold`): the highest magnetising current an on-time ends at,
+    and the magnetising current the switch trips off at (at most). On a flux-linkage curve
+    the delay's rise is at most the flux's ``V_th delay / s`` (the lowest scale ``s``):
+    ``psi^-1(psi(J) + V_th delay / s)``, never above ``A`` from below it."""
+    e = cold.inductance
+    r_e, l_m = e.resistance, e.magnetising
+    a_top = cold.v_on / cold.r_on
+    j = sensed_threshold(th.upper_a / low, cold.v_on, cold.r_on, r_e)
+    if th.control == "hysteretic":
+        j = np.maximum(j, sensed_threshold(th.lower_a / low, -cold.v_off, cold.r_off, r_e))
+    r_th = cold.r_on * r_e / (cold.r_on + r_e)
+    if isinstance(l_m, flux.FluxCoil):
+        curve, s_min = l_m.curve, float(np.min(l_m.scale))
+        v_th = float(np.max(cold.v_on * r_e / (cold.r_on + r_e)))
+        reach = np.asarray(curve.current_of(curve.psi(np.maximum(j, 0.0)) + v_th * th.delay_s / s_min), float)
+        top = np.maximum(j, np.minimum(a_top, reach))
+    else:
+        top = np.maximum(j, a_top - (a_top - j) * np.exp(-th.delay_s * r_th / l_m))
+    if th.control != "hysteretic":
+        top = np.maximum(top, _delay_orbit_top(th, cold))
+    return top, j
+
+
 def _eddy_current_hold(th, cold, low: float, settle: float) -> tuple[float, float, float]:
     """:func:`_current_mode_hold`'s ``(hold top A, bottom A, settle s)`` with an eddy term
     on a linear coil, from the cold loops ``cold`` (docs/design-method.md, "An
@@ -633,16 +671,8 @@ def _eddy_current_hold(th, cold, low: float, settle: float) -> tuple[float, floa
     bound (the map of one such cycle is a contraction: the tops stay under the larger).
     The hold's top is the terminal current there (off it is below ``i_m``); the bottom
     of the tail's excess is the lowest ``J`` (magnetising)."""
-    e = cold.inductance
-    r_e, l_m = e.resistance, e.magnetising
-    a_top = cold.v_on / cold.r_on
-    j = sensed_threshold(th.upper_a / low, cold.v_on, cold.r_on, r_e)
-    if th.control == "hysteretic":
-        j = np.maximum(j, sensed_threshold(th.lower_a / low, -cold.v_off, cold.r_off, r_e))
-    r_th = cold.r_on * r_e / (cold.r_on + r_e)
-    top = np.maximum(j, a_top - (a_top - j) * np.exp(-th.delay_s * r_th / l_m))
-    if th.control != "hysteretic":
-        top = np.maximum(top, _delay_orbit_top(th, cold))
+    r_e = cold.inductance.resistance
+    top, j = _eddy_current_top(th, cold, low)
     terminal = np.maximum(top, (cold.v_on + r_e * top) / (cold.r_on + r_e))
     return float(np.max(terminal)), float(np.min(j)), settle
 
@@ -1026,19 +1056,15 @@ def _refuse(system: System, ch) -> None:
     """What the rail's current bound is made for: a linear coil (with a moving armature,
     an eddy term or both) or a flux-linkage curve (no armature), on one switch or a full
     bridge, under a voltage-mode (fixed, supply-table or closed-loop) hold or a
-    current-mode one (with an eddy term only on a linear coil), or a latching coil, or a
-    boosted peak. Anything else is refused in one line: a curve with a moving armature
-    (the closing armature's current is not proved to stay under the open curve's rise,
-    docs/design-method.md, "A flux-linkage curve"), an eddy term under a current-mode hold
-    on a curve, a boosted peak with an eddy term, and a boosted peak without
-    ``supply.boost_efficiency`` (its converter's draw)."""
+    current-mode one, or a latching coil, or a boosted peak. Anything else is refused in
+    one line: a curve with a moving armature (the closing armature's current is not proved
+    to stay under the open curve's rise, docs/design-method.md, "A flux-linkage curve"), a
+    boosted peak with an eddy term, and a boosted peak without ``supply.boost_efficiency``
+    (its converter's draw)."""
     d = ch.drive
     why = None
     if d.coil.flux_current and d.armature is not None:
         key, why = "armature", "a moving armature with a flux-linkage curve"
-    elif d.coil.eddy_resistance and d.hold.mode == "current" and d.coil.flux_current:
-        key, why = ("coil.eddy_resistance",
-                    "an eddy-current term with a current-mode hold on a flux-linkage curve")
     elif d.supply.boosted and d.coil.eddy_resistance:
         key, why = "supply.boost", "a boosted peak with an eddy-current term"
     elif d.supply.boosted and not d.supply.boost_efficiency > 0:
@@ -1049,8 +1075,8 @@ def _refuse(system: System, ch) -> None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
                          "in a system yet; expected a linear coil (with an [armature], an eddy term or both) "
                          "or a flux-linkage curve (no [armature]), one switch or a full bridge and a voltage-mode "
-                         "fixed, supply-table or closed-loop hold, a current-mode hold (with an eddy term on a "
-                         "linear coil), or a latching coil; a boosted peak without an eddy term")
+                         "fixed, supply-table, closed-loop or current-mode hold, or a latching coil; a boosted "
+                         "peak without an eddy term")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:
