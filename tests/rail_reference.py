@@ -192,3 +192,20 @@ def simulated_last_channel(system, folder, tmp_path, branch, hold_time: float, s
     late = t > b["peak_s"] + settle
     assert np.any(csv[late, 13] == 0) and np.any(csv[late, 13] == 1)
     return csv
+
+
+def header_holds(tmp_path, text: str, condition: str) -> None:
+    """The board header ``text`` compiled by gcc (-std=c99 -Wall -Wextra -Werror
+    -pedantic) into a program returning 0 where the C ``condition`` on its constants holds,
+    run: it must return 0."""
+    import subprocess
+
+    from conftest import require_tool
+
+    gcc = require_tool("gcc")
+    (tmp_path / "board.h").write_text(text)
+    (tmp_path / "m.c").write_text(f'#include "board.h"\nint main(void) {{ return {condition} ? 0 : 1; }}\n')
+    p = subprocess.run([gcc, "-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic", "-I", str(tmp_path),
+                        str(tmp_path / "m.c"), "-o", str(tmp_path / "m")], capture_output=True, text=True)
+    assert p.returncode == 0, p.stderr
+    assert subprocess.run([str(tmp_path / "m")]).returncode == 0

@@ -26,7 +26,8 @@ import pytest
 from typer.testing import CliRunner
 
 from conftest import run_cli
-from rail_reference import assert_staggered_within_limit, comparator_run, linear_tail, simulated_last_channel
+from rail_reference import (assert_staggered_within_limit, comparator_run, header_holds, linear_tail,
+                            simulated_last_channel)
 
 from coildrive.cli import app
 from coildrive.config import load_drive
@@ -141,3 +142,18 @@ def test_simulate_and_the_channels_device(doc, tmp_path):
     r = run_cli("emulate", str(folder / "sys.toml"), "--channel", "purge2", "--duration", "0.3")
     assert r.returncode == 0 and r.stdout.startswith("/dev/"), r.stderr
     assert "channel purge2" in r.stderr, r.stderr
+
+
+def test_header_compiles(doc, tmp_path):
+    """``design SYSTEM.toml --header``: the bridge channels' hold under their prefix (the
+    current-mode or closed-loop constants and the bridge's switch masks), compiled with
+    gcc -Wall -Wextra -Werror -pedantic."""
+    system, folder = doc
+    header = tmp_path / "board.h"
+    r = run_cli("design", str(folder / "sys.toml"), "--header", str(header))
+    assert r.returncode == 0, r.stderr
+    text = header.read_text()
+    what = "CURRENT" if system["channels"][-1]["design"]["hold"]["regulation"] == "current" else "CLOSED_LOOP"
+    assert f"#define PURGE2_HOLD_REGULATION             PURGE2_REGULATION_{what}" in text
+    assert "#define PURGE2_BRIDGE_HOLD_ON_SWITCHES" in text
+    header_holds(tmp_path, text, f"PURGE2_HOLD_REGULATION == PURGE2_REGULATION_{what} && DISP1_PEAK_TICKS > 0")
