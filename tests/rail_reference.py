@@ -9,10 +9,12 @@ import numpy as np
 
 def linear_tail(t, b):
     """A branch's tail (A) ``t`` s after switch-on: the hold's top plus each part's excess
-    decaying from the end of the first PWM period at its slowest rate."""
+    decaying from the end of the first PWM period at its slowest rate; a closed loop's never
+    above ``tail_cap_a`` (its clamp's orbit top, or two periods' rise from the peak's end)."""
     age = np.maximum(np.asarray(t, float) - b["peak_s"] - b["pwm_period_s"], 0)
-    return b["hold_top_a"] + np.max([e * np.exp(-age * b["slow_resistance_ohm"] / l)
+    tail = b["hold_top_a"] + np.max([e * np.exp(-age * b["slow_resistance_ohm"] / l)
                                      for e, l in zip(b["excess_a"], b["tail_inductance_h"])], axis=0)
+    return np.minimum(tail, b.get("tail_cap_a", np.inf))
 
 
 def rail_worst(chans, branch, points: int = 100_000) -> float:
@@ -127,3 +129,83 @@ def simulate_csv(system_file, folder, hold_time: float, supply: float = 28.0) ->
                                  "--hold-time", f"{hold_time:g}", "--csv", str(out)])
     assert r.exit_code == 0, r.output
     return np.loadtxt(out, delimiter=",", skiprows=1)
+
+
+def comparator_run(rhs, sensed, cm, reading, peak, cycles, y0=0.0, n=40):
+    """One channel written afresh under its comparator, by scipy's ``solve_ivp`` (LSODA,
+    events at the thresholds): on for ``peak`` s from ``y0``, then ``cycles`` hold cycles
+    -- on until the reading (``reading`` x ``sensed(on, y)``, the true current times the
+    sense chain's factor) reaches the upper (peak) threshold and the design's
+    ``sense_delay`` past it; hysteretic, off until it falls to the lower and the delay past
+    it, else off for the fixed off time (``cm``: the design's ``current_mode``). ``rhs(t, y,
+    on)`` is the state's rate. Returns ``(t, state, on, (t_end, y_end, run))``: ``n`` samples
+    a segment, and ``run(t0, y, on, t_max, level=None, stop=None)`` to go on from the end
+    (returns the end time and state; ``run.samples()`` every segment's samples so far)."""
+    from scipy.integrate import solve_ivp
+
+    ts, ys, ons = [], [], []
+
+    def run(t0, y, on, t_max, level=None, stop=None):
+        """From ``t0`` with state ``y`` for at most ``t_max`` s, or until the reading crosses
+        ``level`` (up while on, down while off), or ``stop(y)`` reaches zero; returns the
+        end time and state."""
+        def ev(_t, s, _on):
+            return reading * sensed(on, s[0]) - level if stop is None else stop(s[0])
+        ev.terminal, ev.direction = True, (1 if on and stop is None else -1)
+        if level is not None and ev(t0, [y], on) * ev.direction >= 0:
+            return t0, y                                   # already past: trips at once
+        sol = solve_ivp(rhs, (t0, t0 + t_max), [y], method="LSODA", rtol=1e-10, atol=1e-13, args=(on,),
+                        events=None if level is None and stop is None else ev, dense_output=True)
+        tt = np.linspace(t0, sol.t[-1], n)
+        ts.append(tt)
+        ys.append(sol.sol(tt)[0])
+        ons.append(np.full(n, on))
+        return sol.t[-1], float(sol.y[0, -1])
+
+    t, y = run(0.0, y0, True, peak) if peak > 0 else (0.0, y0)
+    lo, hi, delay = (cm["lower_a"], cm["upper_a"], cm["sense_delay_s"]) if cycles else (0, 0, 0)
+    for _ in range(cycles):
+        t, y = run(t, y, True, 1.0, hi)             # on to the upper threshold (read)
+        t, y = run(t, y, True, delay)               # and the delay past it
+        if cm["control"] == "hysteretic":
+            t, y = run(t, y, False, 1.0, lo)        # off to the lower
+            t, y = run(t, y, False, delay)
+        else:
+            t, y = run(t, y, False, cm["off_time_s"])
+    run.samples = lambda: (np.concatenate(ts), np.concatenate(ys), np.concatenate(ons))
+    return (*run.samples(), (t, y, run))
+
+
+def simulated_last_channel(system, folder, tmp_path, branch, hold_time: float, settle: float,
+                           coil: bool = False) -> np.ndarray:
+    """``simulate SYSTEM.toml`` (:func:`simulate_csv`, 28 V, cold, nominal coil) of the
+    system file ``folder``/sys.toml (``design --json``'s ``system``): its last channel's draw
+    (its current while its switch is on; with ``coil`` its coil current) never above its one
+    branch ``branch(t, b)`` on the CSV's grid and above 0.55 A at its top, its hold switching
+    on and off from ``settle`` s after the peak on; returns the CSV."""
+    csv = simulate_csv(folder / "sys.toml", tmp_path, hold_time)
+    ch = system["channels"][-1]
+    (b,) = ch["bound"]["branches"]
+    t = csv[:, 0] - ch["offset_s"]
+    draw = csv[:, 7] if coil else csv[:, 7] * csv[:, 13]
+    assert draw.max() > 0.55 and np.all(draw <= branch(t, b) + 1e-9), float(np.max(draw - branch(t, b)))
+    late = t > b["peak_s"] + settle
+    assert np.any(csv[late, 13] == 0) and np.any(csv[late, 13] == 1)
+    return csv
+
+
+def header_holds(tmp_path, text: str, condition: str) -> None:
+    """The board header ``text`` compiled by gcc (-std=c99 -Wall -Wextra -Werror
+    -pedantic) into a program returning 0 where the C ``condition`` on its constants holds,
+    run: it must return 0."""
+    import subprocess
+
+    from conftest import require_tool
+
+    gcc = require_tool("gcc")
+    (tmp_path / "board.h").write_text(text)
+    (tmp_path / "m.c").write_text(f'#include "board.h"\nint main(void) {{ return {condition} ? 0 : 1; }}\n')
+    p = subprocess.run([gcc, "-std=c99", "-Wall", "-Wextra", "-Werror", "-pedantic", "-I", str(tmp_path),
+                        str(tmp_path / "m.c"), "-o", str(tmp_path / "m")], capture_output=True, text=True)
+    assert p.returncode == 0, p.stderr
+    assert subprocess.run([str(tmp_path / "m")]).returncode == 0

@@ -210,18 +210,3 @@ def test_what_a_closed_loop_bridge_refuses_is_one_line(tmp_path):
     r = run_cli("tune", str(_variant(tmp_path, name="t.toml")))   # as for one switch
     assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1 and "hold.regulation" in r.stderr
 
-
-@pytest.mark.parametrize("hold, key", [('mode = "current"', "hold.mode"), ('regulation = "closed_loop"', "hold.regulation")])
-def test_a_system_channel_refuses_a_bridges_regulated_hold_in_one_line(tmp_path, hold, key):
-    # the rail's bound is made for a bridge's fixed and supply-table holds only (design/system.py)
-    from rail_reference import manifold_copy
-
-    path = manifold_copy(tmp_path)
-    purge = tmp_path / "purge-valve-24v.toml"
-    text = purge.read_text().split("[freewheel]")[0].replace("frequency_tolerance = 0.03\n",
-                                                               f"frequency_tolerance = 0.03\n{hold}\n")
-    purge.write_text(text + '\n[switch]\ntopology = "full_bridge"\n\n[freewheel]\ntype = "diode"\ndiode_drop = "0.9 V"\n')
-    r = run_cli("design", str(path))
-    lines = r.stderr.strip().splitlines()
-    assert r.returncode == 2 and len(lines) == 1, r.stderr
-    assert key in lines[0] and "a full bridge's" in lines[0] and "purge" in lines[0]

@@ -131,6 +131,8 @@ def _branch_parts(t, b: dict):
         return rise, flux_bound.table_current(left, b["tail_flux_wb"], b["tail_current_a"])
     tail = b["hold_top_a"] + np.max([e * np.exp(-age * b["slow_resistance_ohm"] / l)
                                      for e, l in zip(b["excess_a"], b["tail_inductance_h"])], axis=0)
+    if "tail_cap_a" in b:             # a closed loop's: never above its clamp's top (_two_period_top)
+        tail = np.minimum(tail, b["tail_cap_a"])
     if "converter_until_s" in b:      # a boosted peak's converter, recharging its capacitor
         tail = tail + np.where(t < b["converter_until_s"], b["converter_a"], 0.0)
     return rise, tail
@@ -309,8 +311,17 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             # coil's highest inductance: one part
             i_pe, ends = np.array([float(_branch_rise(tp, branch))]), np.array([l_min, l_max])
         elif r_eddy is not None and curve is not None:
+            ripple = None
+            if current is not None:
+                # the magnetising current's hold top and trip (J); after the peak on for at
+                # most the delay, the flux rising by at most V_th delay / s, then off
+                top_m, j = _eddy_current_top(d.hold.thresholds, top_cold, envelope.reading_factors(drive)[0])
+                top_m, bottom = float(np.max(top_m)), float(np.min(j))
+                ripple = hi * r_eddy / (r_on + r_eddy) * d.hold.thresholds.delay_s / float(scale.min())
+            else:
+                top_m = float(np.max(orbit.i_max))
             branch.update(_eddy_curve_branch(flux.FluxCoil(curve, float(scale.min())), hi, r_on, r_eddy, tp,
-                                             float(np.max(orbit.i_max)), bottom))
+                                             top_m, bottom, ripple))
             r_slow = r_slow_eddy
             hold_top, bottom = branch.pop("hold_top_a"), 0.0
             i_pe = np.array([branch.pop("excess_a")])
@@ -343,6 +354,12 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             i_pe = np.array([bottom + tail["excess_a"]])
             ends = np.array([l_min, tail["l_max_h"] * float(scale.max())])
             peak_end["a"] = float(currents[-1])
+        if d.hold.regulation == "closed_loop" and not (drive.armature is not None or r_eddy is not None
+                                                       or curve is not None or drive.supply.boosted):
+            # a linear coil under its loop, at most the clamp's PWM from the peak's end:
+            # never above the larger of its orbit's top and two periods' rise (_two_period_top)
+            cap = max(hold_top, _two_period_top(float(i_pe[0]), hi, r_on, l_min, 1.0 / f))
+            branch.update({"tail_cap_a": cap, "top_a": min(cap, hold_top + max(0.0, float(i_pe[0]) - bottom))})
         branches.append({**branch, "peak_end_a": float(peak_end.get("a", i_pe[0])), "hold_top_a": hold_top,
                          "excess_a": [max(0.0, float(x) - bottom) for x in i_pe],
                          "tail_inductance_h": [float(x) for x in ends[1:]],
@@ -455,8 +472,7 @@ def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bott
     if d.hold.mode == "current":
         coil_top = hold_top + max(0.0, i_end - bottom)
     else:
-        a = v_hi / r_on
-        coil_top = max(hold_top, i_end + max(0.0, a - i_end) * -math.expm1(-2.0 / d.hold.frequency_hz * r_on / l_min))
+        coil_top = max(hold_top, _two_period_top(i_end, v_hi, r_on, l_min, 1.0 / d.hold.frequency_hz))
     out = {"boost_v": bst.boost_max_v, "resistance_ohm": r_on, "inductance_h": l_min, "coil_top_a": coil_top,
            "boost_efficiency": s.boost_efficiency}
     if bst.capacitance_f > 0:
@@ -468,6 +484,19 @@ def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bott
                     "feed_end_a": bst.end_current_max_a})
         out["top_a"] = max(out["feed_ratio"] * bst.end_current_max_a, coil_top)
     return out
+
+
+def _two_period_top(i0: float, v: float, r: float, l: float, period: float) -> float:
+    """The most (A) a linear coil's current reaches over two PWM periods ``period`` s on at
+    ``v`` V through ``r`` ohm and ``l`` H from ``i0`` A: ``i0 + (V/R - i0)(1 - exp(-2 T
+    R/L))`` (at the lowest ``R`` and ``L`` the largest; it grows with ``i0``). Under a PWM of
+    constant duty whose period map is increasing and contracts onto its orbit (start ``B``,
+    top ``H``), a current handed over at ``i0`` at any phase reaches its first period start
+    within a period at most at that rise, every later start is at most ``max(that, B)``, and
+    each period's top is at most ``max(H, the rise)`` (the top is 1-Lipschitz in the start):
+    so the current never passes ``max(H, _two_period_top)`` (docs/design-method.md, "Several
+    channels")."""
+    return i0 + max(0.0, v / r - i0) * -math.expm1(-2.0 * period * r / l)
 
 
 def _boost_rise(t, b: dict):
@@ -503,7 +532,7 @@ def _armature_rise(arm, supply: float, r_on: float, lc_low: float, lc_high: floa
 
 
 def _eddy_curve_branch(coil, v: float, r: float, r_e: float, peak_s: float, top_m: float,
-                       bottom_m: float) -> dict:
+                       bottom_m: float, ripple: float | None = None) -> dict:
     """The keys of a branch with an eddy term on a flux-linkage curve (``coil`` at its
     lowest scale), at ``v`` V through the coldest on-loop's ``r`` ohm, ``r_e`` ohm across
     the coil, a peak ``peak_s`` s long, the hold orbit's highest magnetising top ``top_m``
@@ -519,11 +548,15 @@ def _eddy_curve_branch(coil, v: float, r: float, r_e: float, peak_s: float, top_
     most ``max(i_m, g(i_m))`` of that (off, it is below ``i_m``): ``tail_flux_wb`` /
     ``tail_current_a``, ``hold_top_a`` its value at ``D = 0``, ``excess_a`` ``D0/L_min``
     (the lowest incremental inductance from ``top_m`` up to the reach: both parts of the
-    max grow with slope at most 1)."""
+    max grow with slope at most 1). Under a current-mode hold ``ripple`` (Wb, unscaled)
+    replaces ``psi(top_m) - psi(bottom_m)``: the flux's rise over the delay the switch
+    stays on after the peak, before it is off down to the lower threshold, with the
+    excess falling through the off-loop's Thevenin resistance (``top_m`` the on-times'
+    highest top, ``bottom_m`` the trip ``J``)."""
     v_th, r_th = v * r_e / (r + r_e), r * r_e / (r + r_e)
     times, i_m = flux_bound.rise_table(coil, v_th, r_th, peak_s)
     curve = coil.curve
-    spread = float(curve.psi(top_m)) - float(curve.psi(min(bottom_m, top_m)))
+    spread = float(curve.psi(top_m)) - float(curve.psi(min(bottom_m, top_m))) if ripple is None else ripple
     tail = flux_bound.tail_excess(curve, float(i_m[-1]), top_m, spread)
     deltas, cur = tail["table"]
     terminal = np.maximum(cur, (v + r_e * cur) / (r + r_e))
@@ -599,6 +632,31 @@ def _delay_orbit_top(th, cold) -> np.ndarray:
     return orbit.i_max
 
 
+def _eddy_current_top(th, cold, low: float) -> tuple[np.ndarray, np.ndarray]:
+    """``(top, J)`` (A, magnetising, per cold loop) of a current-mode hold with an eddy
+    term (:func:`_eddy_current_hold`): the highest magnetising current an on-time ends at,
+    and the magnetising current the switch trips off at (at most). On a flux-linkage curve
+    the delay's rise is at most the flux's ``V_th delay / s`` (the lowest scale ``s``):
+    ``psi^-1(psi(J) + V_th delay / s)``, never above ``A`` from below it."""
+    e = cold.inductance
+    r_e, l_m = e.resistance, e.magnetising
+    a_top = cold.v_on / cold.r_on
+    j = sensed_threshold(th.upper_a / low, cold.v_on, cold.r_on, r_e)
+    if th.control == "hysteretic":
+        j = np.maximum(j, sensed_threshold(th.lower_a / low, -cold.v_off, cold.r_off, r_e))
+    r_th = cold.r_on * r_e / (cold.r_on + r_e)
+    if isinstance(l_m, flux.FluxCoil):
+        curve, s_min = l_m.curve, float(np.min(l_m.scale))
+        v_th = float(np.max(cold.v_on * r_e / (cold.r_on + r_e)))
+        reach = np.asarray(curve.current_of(curve.psi(np.maximum(j, 0.0)) + v_th * th.delay_s / s_min), float)
+        top = np.maximum(j, np.minimum(a_top, reach))
+    else:
+        top = np.maximum(j, a_top - (a_top - j) * np.exp(-th.delay_s * r_th / l_m))
+    if th.control != "hysteretic":
+        top = np.maximum(top, _delay_orbit_top(th, cold))
+    return top, j
+
+
 def _eddy_current_hold(th, cold, low: float, settle: float) -> tuple[float, float, float]:
     """:func:`_current_mode_hold`'s ``(hold top A, bottom A, settle s)`` with an eddy term
     on a linear coil, from the cold loops ``cold`` (docs/design-method.md, "An
@@ -613,16 +671,8 @@ def _eddy_current_hold(th, cold, low: float, settle: float) -> tuple[float, floa
     bound (the map of one such cycle is a contraction: the tops stay under the larger).
     The hold's top is the terminal current there (off it is below ``i_m``); the bottom
     of the tail's excess is the lowest ``J`` (magnetising)."""
-    e = cold.inductance
-    r_e, l_m = e.resistance, e.magnetising
-    a_top = cold.v_on / cold.r_on
-    j = sensed_threshold(th.upper_a / low, cold.v_on, cold.r_on, r_e)
-    if th.control == "hysteretic":
-        j = np.maximum(j, sensed_threshold(th.lower_a / low, -cold.v_off, cold.r_off, r_e))
-    r_th = cold.r_on * r_e / (cold.r_on + r_e)
-    top = np.maximum(j, a_top - (a_top - j) * np.exp(-th.delay_s * r_th / l_m))
-    if th.control != "hysteretic":
-        top = np.maximum(top, _delay_orbit_top(th, cold))
+    r_e = cold.inductance.resistance
+    top, j = _eddy_current_top(th, cold, low)
     terminal = np.maximum(top, (cold.v_on + r_e * top) / (cold.r_on + r_e))
     return float(np.max(terminal)), float(np.min(j)), settle
 
@@ -1006,26 +1056,15 @@ def _refuse(system: System, ch) -> None:
     """What the rail's current bound is made for: a linear coil (with a moving armature,
     an eddy term or both) or a flux-linkage curve (no armature), on one switch or a full
     bridge, under a voltage-mode (fixed, supply-table or closed-loop) hold or a
-    current-mode one (with an eddy term, on a linear coil without an armature; no moving
-    armature; not on a full bridge), or a latching coil, or a boosted peak. Anything else
-    is refused in one line: a curve with a moving armature (the closing armature's current
-    is not proved to stay under the open curve's rise, docs/design-method.md, "A
-    flux-linkage curve"), a current-mode hold with a moving armature, an eddy term under a
-    current-mode hold on a curve, a full bridge's current-mode or closed-loop hold, a
-    boosted peak with an eddy term, and a boosted peak without
-    ``supply.boost_efficiency`` (its converter's draw)."""
+    current-mode one, or a latching coil, or a boosted peak. Anything else is refused in
+    one line: a curve with a moving armature (the closing armature's current is not proved
+    to stay under the open curve's rise, docs/design-method.md, "A flux-linkage curve"), a
+    boosted peak with an eddy term, and a boosted peak without ``supply.boost_efficiency``
+    (its converter's draw)."""
     d = ch.drive
     why = None
     if d.coil.flux_current and d.armature is not None:
         key, why = "armature", "a moving armature with a flux-linkage curve"
-    elif d.armature is not None and d.hold.mode == "current":
-        key, why = "hold.mode", "a current-mode hold with an [armature]"
-    elif d.coil.eddy_resistance and d.hold.mode == "current" and d.coil.flux_current:
-        key, why = ("coil.eddy_resistance",
-                    "an eddy-current term with a current-mode hold on a flux-linkage curve")
-    elif d.switch.topology == "full_bridge" and d.hold.regulation in ("current", "closed_loop"):
-        key = "hold.mode" if d.hold.regulation == "current" else "hold.regulation"
-        why = f"a full bridge's {'current-mode' if d.hold.regulation == 'current' else 'closed-loop'} hold"
     elif d.supply.boosted and d.coil.eddy_resistance:
         key, why = "supply.boost", "a boosted peak with an eddy-current term"
     elif d.supply.boosted and not d.supply.boost_efficiency > 0:
@@ -1036,9 +1075,8 @@ def _refuse(system: System, ch) -> None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
                          "in a system yet; expected a linear coil (with an [armature], an eddy term or both) "
                          "or a flux-linkage curve (no [armature]), one switch or a full bridge and a voltage-mode "
-                         "fixed, supply-table or closed-loop hold, a current-mode hold (no [armature]; with an "
-                         "eddy term on a linear coil; one switch), or a latching coil; a boosted peak without an "
-                         "eddy term")
+                         "fixed, supply-table, closed-loop or current-mode hold, or a latching coil; a boosted "
+                         "peak without an eddy term")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:
