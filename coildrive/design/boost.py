@@ -7,7 +7,7 @@ main supply. Physics in :mod:`coildrive.model.boost`.
   above it, so the real trip lies between the threshold and the code's current as a
   low-reading chain sees it -- and the driver compares it once a conversion, and converts
   once a PWM period (docs/firmware.md), so it is seen up to one PWM period of the hold
-  timer late (:func:`conversion_period`): the end current, the switch voltage, the
+  timer late (:func:`~coildrive.design.timer.conversion_period`): the end current, the switch voltage, the
   time-out, the energy and the peak's heat all include it.
 * The slow side (pull-in, force, time-out): the boost at its lowest (``boost`` less
   ``boost_tolerance``, the capacitance less its tolerance) with the envelope's hot coil --
@@ -30,7 +30,7 @@ from ..model.eddy import EddyCoil
 from .corners import CornerGrid
 from .envelope import reading_factors
 from .result import BoostResult, Check
-from .timer import timer_for
+from .timer import conversion_period, timer_for
 
 
 def at_boost(drive: Drive, v_b, c, r_on, inductance) -> model.Boost:
@@ -123,18 +123,9 @@ def peak_in_force(design, supply: float, coil_temp: float, r_factor: float = 1.0
     return firmware_peak(design, supply, coil_temp, r_factor, l_factor)
 
 
-def conversion_period(drive: Drive) -> float:
-    """The longest time (s) between two of the driver's conversions in the peak: one PWM
-    period of the hold timer (the driver converts once a PWM period, docs/firmware.md), at
-    the frequency the timer really makes (:func:`~coildrive.design.timer.timer_for`: the
-    prescaler and period of the drive, or the system's shared timer). Not the ADC's
-    ``sample_rate``, the bench link's streaming rate."""
-    return 1.0 / timer_for(drive).frequency_hz
-
-
 def _seen(drive: Drive, b: model.Boost) -> np.ndarray:
     """When the firmware sees the threshold at the latest (s; ``inf`` where never): the
-    highest trip current (the chain reading low), one conversion (:func:`conversion_period`)
+    highest trip current (the chain reading low), one conversion (:func:`~coildrive.design.timer.conversion_period`)
     late. (With an eddy term the sense sees the terminal current, which leads the
     magnetising current.)"""
     return model.of(b).threshold_time(threshold(drive)[2], b, sensed=True) + conversion_period(drive)

@@ -33,7 +33,7 @@ from ..model.armature import ArmatureParams
 from ..model.armature_boost import boost_energy, boost_params, boosted_pull_in
 from ..model.armature_runs import PullInBatch, pull_in
 from ..model.rl import rise_current
-from .boost import conversion_period
+from .timer import conversion_period
 
 
 @dataclass(frozen=True)
@@ -70,7 +70,7 @@ def _boost(drive: Drive, p: ArmatureParams, high: bool) -> ArmatureParams:
 
 def _end(drive: Drive, pb: ArmatureParams, pin: PullInBatch, i_trip: float):
     """``(end of the peak s, the most current then A, the boost then V, energy J)`` one
-    conversion (a PWM period, :func:`coildrive.design.boost.conversion_period`) after
+    conversion (a PWM period, :func:`coildrive.design.timer.conversion_period`) after
     ``pin``'s trip at ``i_trip`` A: the open coil's stiff rise at the
     boost's voltage bounds the current over it (with an eddy term the magnetising current's
     rise through the loop's Thevenin pair, and the terminal current ``(V_b + R_e i_m)/(R +

@@ -73,3 +73,12 @@ def timer_for(drive) -> TimerSetting:
         return TimerSetting(int(p), int(n), t.clock / (p * n), drive.hold.frequency)
     return solve_timer(t.clock, t.bits, t.prescaler_max, drive.hold.frequency,
                        drive.hold.frequency_tolerance, t.prescalers)
+
+
+def conversion_period(drive: Drive) -> float:
+    """The longest time (s) between two of the driver's conversions in the peak: one PWM
+    period of the hold timer (the driver converts once a PWM period, docs/firmware.md), at
+    the frequency the timer really makes (:func:`timer_for`: the
+    prescaler and period of the drive, or the system's shared timer). Not the ADC's
+    ``sample_rate``, the bench link's streaming rate."""
+    return 1.0 / timer_for(drive).frequency_hz
