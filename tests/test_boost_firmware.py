@@ -198,8 +198,8 @@ def test_current_mode_hold_takes_over_at_the_boosts_threshold(tmp_path, control)
     # boost off, reports PEAK_END and arms the comparator (or window watchdog) at the
     # hold's codes; the harness's comparator then calls the threshold handler in that
     # conversion, which switches off at once though the tick has not yet entered HOLD
-    # (before this driver ran the current-mode hold, its handlers switched in HOLD only:
-    # the coil would have stayed on from the main supply for up to a tick)
+    # (handlers that switched in HOLD only would leave the coil on from the main supply for
+    # up to a tick)
     from driver_harness import conversions_per_tick, example_design, run_host
 
     d = example_design("fuel-valve-boost-12v", (CURRENT[0], CURRENT[1] + f'\ncontrol = "{control}"'))
