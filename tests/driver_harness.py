@@ -179,7 +179,8 @@ def budget_script(d) -> list[tuple[str, int]]:
 
 #: Drive shapes whose handlers the budget covers: every bundled example (the closed-loop
 #: one included), the bridge example with a moving armature, with a mixed-decay hold, with
-#: each current-mode control and with a closed loop, and the demo with each current-mode control.
+#: each current-mode control and with a closed loop, the demo with each current-mode control,
+#: and the boost example with a current-mode hold and with a closed loop.
 def budget_shapes() -> list[tuple[str, object]]:
     shapes = [(name, example_design(name)) for name in
               ("demo-valve", "door-latch-24v", "locker-latch-12v", "pinch-valve-48v", "relay-12v",
@@ -198,6 +199,11 @@ def budget_shapes() -> list[tuple[str, object]]:
             "dosing-valve-bridge-24v", ("[hold]\n", f'[hold]\nmode = "current"\ncontrol = "{control}"\n'))))
     shapes.append(("dosing-valve-bridge-24v closed-loop", example_design(
         "dosing-valve-bridge-24v", ("[hold]\n", '[hold]\nregulation = "closed_loop"\n'))))
+    # the regulated holds after a boosted peak: the threshold's conversion arms the
+    # comparator, or preloads the loop and runs its first PI step
+    for label, line in (("current", 'mode = "current"'), ("closed-loop", 'regulation = "closed_loop"')):
+        shapes.append((f"fuel-valve-boost-12v {label}", example_design(
+            "fuel-valve-boost-12v", ('frequency = "50 kHz"', f'frequency = "50 kHz"\n{line}'))))
     return shapes
 
 

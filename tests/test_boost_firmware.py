@@ -185,3 +185,97 @@ def test_firmware_in_the_loop_passes_check(tmp_path, firmware, monkeypatch):
     assert r.returncode == 0, {k: (i["status"], i["detail"]) for k, i in items.items()}
     assert {k for k, i in items.items() if i["status"] == "pass"} >= {
         "pull_in_time", "peak_duration", "hold_mean", "release_time"}
+
+
+CURRENT = ('frequency = "50 kHz"', 'frequency = "50 kHz"\nmode = "current"')
+CLOSED = ('frequency = "50 kHz"', 'frequency = "50 kHz"\nregulation = "closed_loop"')
+
+
+@pytest.mark.compiler
+@pytest.mark.parametrize("control", ["hysteretic", "off_time"])
+def test_current_mode_hold_takes_over_at_the_boosts_threshold(tmp_path, control):
+    # gcc, the scripted program: the conversion that reads the threshold code turns the
+    # boost off, reports PEAK_END and arms the comparator (or window watchdog) at the
+    # hold's codes; the harness's comparator then calls the threshold handler in that
+    # conversion, which switches off at once though the tick has not yet entered HOLD
+    # (handlers that switched in HOLD only would leave the coil on from the main supply for
+    # up to a tick)
+    from driver_harness import conversions_per_tick, example_design, run_host
+
+    d = example_design("fuel-valve-boost-12v", (CURRENT[0], CURRENT[1] + f'\ncontrol = "{control}"'))
+    assert d.hold.regulation == "current" and d.boost is not None
+    th, timeout, lock = d.boost.threshold_code, d.boost.timeout_ticks, d.release.lockout_ticks
+    # then a peak that never reaches the threshold: BOOST_TIMEOUT
+    script = [("level", th - 1), ("run", 1), ("on", 0), ("run", 2), ("level", th), ("run", 1), ("run", 3),
+              ("off", 0), ("run", lock + 20), ("level", th - 1), ("on", 0), ("run", timeout + 2)]
+    run = run_host(tmp_path, d, script)
+    lines = [ln.split() for ln in run.lines if ln[:2] in ("s ", "k ", "e ", "w ", "o ")]
+    end = [x[1:3] for x in lines if x[0] == "e" and int(x[3]) == int(EventKind.PEAK_END)]
+    assert len(end) == 1, run.lines
+    at = end[0]
+    here = [x[0] + x[3] for x in lines if x[1:3] == at]
+    armed = d.hold.thresholds.lower_code * 65536 + d.hold.thresholds.upper_code   # off-time: low 0
+    assert "k0" in here and f"w{armed}" in here, here
+    assert "s0" in here, here          # the threshold handler, still in PEAK
+    assert here.index("k0") < here.index("s0")
+    if control == "off_time":
+        assert "o" + str(d.hold.thresholds.off_ticks) in here
+    assert (2, 0) in run.states(), run.states()     # held without a fault
+    # the time-out: the tick opens the switch itself as it reports the fault (as it does
+    # in a current-mode hold), the boost goes off at the next conversion
+    fault = [x for x in lines if x[0] == "e" and int(x[3]) == int(EventKind.FAULT)]
+    assert [int(x[4]) for x in fault] == [int(FaultCode.BOOST_TIMEOUT)], run.lines
+    tick, cpt = int(fault[0][1]), conversions_per_tick(d)
+    assert ["s", str(tick), str(cpt), "0"] in lines, run.lines
+    assert ["k", str(tick + 1), "0", "0"] in lines, run.lines
+    assert run.states()[-1] == (FAULT_STATE, int(FaultCode.BOOST_TIMEOUT))
+
+
+@pytest.mark.compiler
+def test_closed_loop_starts_from_its_preload_at_the_boosts_threshold(tmp_path):
+    # gcc, the scripted program: from the conversion that reads the threshold code every
+    # compare is the PI step of the header's arithmetic (tests/test_driver_loop.reference,
+    # integers: exact), the integrator preloaded once in that conversion
+    from driver_harness import conversions_per_tick, example_design, run_host
+    from test_driver_loop import reference
+
+    d = example_design("fuel-valve-boost-12v", CLOSED)
+    r = d.hold.closed_loop
+    assert d.hold.regulation == "closed_loop" and d.boost is not None
+    th, sp, cpt = d.boost.threshold_code, r.setpoint_code, conversions_per_tick(d)
+    steps = [(th, 1), (sp - 40, 6), (sp + 30, 6), (sp, 4)]
+    script = [("level", th - 1), ("run", 1), ("on", 0), ("run", 2)]
+    for code, ticks in steps:
+        script += [("level", code), ("run", ticks)]
+    run = run_host(tmp_path, d, script)
+    at = next((t, c) for t, c, k, _ in run.calls("e") if k == int(EventKind.PEAK_END))
+    samples = [code for code, ticks in steps for _ in range(ticks * cpt)]
+    expected = reference(r, samples)
+    dedup = [x for i, x in enumerate(expected) if i == 0 or x != expected[i - 1]]
+    got = [counts for t, c, counts in run.calls("p") if (t, c) >= at]
+    assert got == dedup and len(set(got)) > 3, (got, dedup)
+    assert run.states()[-1] == (2, 0)
+
+
+@pytest.mark.compiler
+@pytest.mark.parametrize("edit, hot", [(CURRENT, True), (CLOSED, False)], ids=["current", "closed_loop"])
+def test_regulated_holds_after_the_boost_pass_check_in_the_loop(tmp_path, edit, hot):
+    # firmware in the loop (gcc, in process) then `check` (a subprocess) at a corner where
+    # the hardware is worst, one per hold (lean): the current-mode hold with the hottest
+    # coil at the lowest supply (the longest boost, the least headroom for the band), the
+    # closed loop with the coldest at the highest (the highest end current to come down from)
+    from driver_harness import as_edited, checked_rows, example_design, loop_captures
+
+    d = example_design("fuel-valve-boost-12v", edit)
+    drive = tmp_path / "fuel-valve-boost-12v.toml"
+    text = as_edited(BOOST.read_text(), edit).replace('board = "lab-m32-zener"',
+                                                      f'board = "{BOOST.parent.parent / "boards" / "lab-m32-zener.toml"}"')
+    drive.write_text(text)
+    temps = [c.coil_temp_c for c in d.corners]
+    runs = [(d.drive.supply.min, max(temps), None) if hot else (d.drive.supply.max, min(temps), None)]
+    for (path, cap), (_, temp, _) in zip(loop_captures(tmp_path, d, runs, hold_time=0.01), runs):
+        kinds = [int(e.kind) for e in cap.events]
+        assert int(EventKind.FAULT) not in kinds and int(EventKind.PEAK_END) in kinds, kinds
+        rows = checked_rows(path, drive, temp)
+        assert {k for k, i in rows.items() if i["status"] == "pass"} >= {
+            "pull_in_time", "peak_duration", "hold_mean", "release_time"}

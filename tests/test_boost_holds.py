@@ -247,14 +247,15 @@ def test_regulated_holds_carry_the_boost_end_to_end(tmp_path, designs):
         assert cc.returncode == 0, cc.stderr
 
 
-def test_reference_driver_refuses_a_regulated_hold_after_the_boost(tmp_path):
-    """The reference C driver runs a boosted peak before a fixed or supply-table hold only:
-    firmware-driver refuses the others in one line naming the key, and writes nothing."""
-    for name, change, key in (("current", CURRENT, "hold.mode"), ("closed", CLOSED, "hold.regulation")):
+def test_reference_driver_runs_a_regulated_hold_after_the_boost(tmp_path):
+    """firmware-driver writes the driver for both regulated holds after a boost (its runs:
+    tests/test_boost_firmware.py): the boost switch beside the threshold handler or the PI
+    step."""
+    for name, change, part in (("current", CURRENT, "coil_threshold_isr"), ("closed", CLOSED, "coil_loop(")):
         out = run_cli("firmware-driver", _variant(tmp_path, name, *change), "--out", str(tmp_path / name))
-        line = out.stderr.strip()
-        assert out.returncode == 2 and "\n" not in line and key in line, line
-        assert not (tmp_path / name).exists()
+        assert out.returncode == 0, out.stderr
+        source = (tmp_path / name / "coil_driver.c").read_text()
+        assert "coil_port_boost(1U)" in source and part in source
 
 
 def test_split_decay_turns_the_boost_off_through_the_fast_path(designs):
