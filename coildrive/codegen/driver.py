@@ -119,6 +119,13 @@ class DriverView:
                              f"{self.regulation!r} after a boosted peak: this driver runs a boosted "
                              "peak before a fixed or supply-table hold only, expected those for "
                              "firmware-driver and emulate --firmware")
+        if self.mixed and self.regulation == "closed_loop":
+            raise InputError(d.drive.source or d.drive.name, "hold.fast_fraction",
+                             f"{d.topology.bridge.hold_fast_fraction:g} with regulation = "
+                             "\"closed_loop\": this driver runs a bridge's mixed-decay hold under a "
+                             "fixed or supply-table hold only (the PI step and the fast part's end in "
+                             "one handler are not timed yet), expected 0 for firmware-driver and "
+                             "emulate --firmware")
         if self.regulation not in ("fixed", "supply_table", "current", "closed_loop"):
             raise InputError(d.drive.source or d.drive.name, "hold.regulation",
                              f"{self.regulation!r}: this driver runs the fixed, supply-table, "
