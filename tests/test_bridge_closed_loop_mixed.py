@@ -23,7 +23,7 @@ import pytest
 
 from conftest import run_cli
 from test_bridge_closed_loop import corner_loop, ngspice_board
-from test_bridge_current import bridge_variant, device_checks, simulate_csv
+from test_bridge_current import bridge_variant, common_return_board, device_checks, simulate_csv
 from coildrive.config import load_drive
 from coildrive.design import design
 from coildrive.errors import InputError
@@ -43,6 +43,65 @@ def clm(tmp_path_factory):
     return path, design(load_drive(path))
 
 
+@pytest.fixture(scope="module")
+def clm_return(tmp_path_factory):
+    """The same drive with the sense resistor in the bridge's common return (the loop
+    samples the middle of the on-time; the slow decay's loop has no sense resistor)."""
+    tmp = tmp_path_factory.mktemp("bclmr")
+    return design(load_drive(_variant(tmp, board=common_return_board(tmp))))
+
+
+def test_common_return_sample_matches_solve_ivp(clm_return):
+    """With the sense resistor in the common return the loop samples the middle of the
+    on-time: scipy's solve_ivp of the three segments (``R + 2 R_sw + R_s`` on, ``R + R_s``
+    against ``V + 2 V_d`` fast -- the diodes' current through the return resistor --,
+    ``R + 2 R_sw`` slow) at the most-duty corner's settled duty: periodic, and the sample
+    there within 1e-5 and in the set-point's code."""
+    d = clm_return
+    r = d.hold.closed_loop
+    assert r.sample_point == "middle of the on-time" and d.topology.bridge.hold_decay == "mixed"
+    _three_segments(d, r.max_duty_corner, r.max_duty, switch_leg=True)
+    assert r.phase_margin_deg >= 45.0 and r.gain_margin_db >= 6.0 and r.saturated_corners == 0
+
+
+def _three_segments(d, label, duty, switch_leg=False):
+    """solve_ivp of the bridge's three segments at corner ``label`` and ``duty``, two
+    periods from the model's periodic state: ``(sample A, solve_ivp's, t_on, t_fast, T,
+    steady state)``, the orbit asserted periodic and the sample equal within 1e-5."""
+    from scipy.integrate import solve_ivp
+    from coildrive.design.loop_duty import sample_at
+
+    drive = d.drive
+    c, lp = corner_loop(d, label)
+    f = d.timer.frequency_hz
+    target, ss = sample_at(duty, f, lp, switch_leg)
+    sw, rs, vd = drive.switch.on_resistance, drive.board.sense.resistance, drive.freewheel.diode_drop
+    r_on, r_fast, v_fast = c.resistance_ohm + 2 * sw + rs, c.resistance_ohm + rs, c.supply_v + 2 * vd
+    r_slow = r_on - (rs if switch_leg else 0.0)
+    t = 1.0 / f
+    t_on = duty * t
+    t_fast = FRACTION * (t - t_on)
+
+    def rhs(time, i):
+        x = time % t
+        if x < t_on:
+            return [(c.supply_v - r_on * i[0]) / c.inductance_h]
+        if x < t_on + t_fast:
+            return [-(v_fast + r_fast * i[0]) / c.inductance_h if i[0] > 0 else 0.0]
+        return [-r_slow * i[0] / c.inductance_h]
+    sol = solve_ivp(rhs, (0, 2 * t), [float(ss.i_min)], max_step=t / 4000, rtol=1e-10, atol=1e-12,
+                    dense_output=True)
+    at = t + (0.5 * t_on if switch_leg else 0.5 * t)
+    got = sol.sol(at)[0]
+    print(f"duty {duty:.5f} at {label}: sample {float(target):.6e} vs solve_ivp {got:.6e} A")
+    assert sol.sol(2 * t)[0] == pytest.approx(float(ss.i_min), rel=1e-5)     # periodic
+    assert got == pytest.approx(float(target), rel=1e-5)
+    if switch_leg:
+        r = d.hold.closed_loop
+        assert abs(float(target) - r.setpoint_a) <= 2 * r.current_lsb_a
+    return float(target), t_on, t_fast, t, ss
+
+
 @pytest.mark.parametrize("which", ["max_duty", "min_duty", "slow_part"])
 def test_settled_sample_matches_solve_ivp_through_the_fast_part(clm, which):
     """At the corners with the most and the least duty the loop's duty puts the
@@ -52,36 +111,13 @@ def test_settled_sample_matches_solve_ivp_through_the_fast_part(clm, which):
     inline sense resistor in every loop), two periods from the model's periodic state.
     There the sample falls in the fast part; ``slow_part``: the sample function at a duty
     of 0.25 (the most-duty corner), where it falls in the slow part (the orbit still continuous)."""
-    from scipy.integrate import solve_ivp
-    from coildrive.design.loop_duty import sample_at
-
     _, d = clm
-    r, drive = d.hold.closed_loop, d.drive
+    r = d.hold.closed_loop
     assert d.hold.regulation == "closed_loop" and d.topology.bridge.hold_decay == "mixed"
     assert r.sample_point == "middle of the period"
     label, duty = (r.min_duty_corner, r.min_duty) if which == "min_duty" else (r.max_duty_corner, r.max_duty)
     duty = 0.25 if which == "slow_part" else duty
-    c, lp = corner_loop(d, label)
-    f = d.timer.frequency_hz
-    target, ss = sample_at(duty, f, lp, False)
-    sw, rs, vd = drive.switch.on_resistance, drive.board.sense.resistance, drive.freewheel.diode_drop
-    r_loop, r_fast, v_fast = c.resistance_ohm + 2 * sw + rs, c.resistance_ohm + rs, c.supply_v + 2 * vd
-    t = 1.0 / f
-    t_on = duty * t
-    t_fast = FRACTION * (t - t_on)
-
-    def rhs(time, i):
-        x = time % t
-        if x < t_on:
-            return [(c.supply_v - r_loop * i[0]) / c.inductance_h]
-        if x < t_on + t_fast:
-            return [-(v_fast + r_fast * i[0]) / c.inductance_h if i[0] > 0 else 0.0]
-        return [-r_loop * i[0] / c.inductance_h]
-    sol = solve_ivp(rhs, (0, 2 * t), [float(ss.i_min)], max_step=t / 4000, rtol=1e-10, atol=1e-12,
-                    dense_output=True)
-    print(f"{which} {duty:.5f} at {label}: sample {float(target):.6e} vs solve_ivp {sol.sol(1.5 * t)[0]:.6e} A")
-    assert sol.sol(2 * t)[0] == pytest.approx(float(ss.i_min), rel=1e-5)     # periodic
-    assert sol.sol(1.5 * t)[0] == pytest.approx(float(target), rel=1e-5)
+    target, t_on, t_fast, t, ss = _three_segments(d, label, duty)
     assert (0.5 * t > t_on + t_fast) == (which == "slow_part") and 0.5 * t > t_on and not ss.dcm
     if which != "slow_part":   # the sample sits in the set-point's code as the channel reads it
         assert abs(float(target) - r.setpoint_a) <= 2 * r.current_lsb_a
