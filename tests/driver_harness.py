@@ -179,7 +179,7 @@ def budget_script(d) -> list[tuple[str, int]]:
 
 #: Drive shapes whose handlers the budget covers: every bundled example (the closed-loop
 #: one included), the bridge example with a moving armature, with a mixed-decay hold, with
-#: each current-mode control and with a closed loop, and the demo with each current-mode control.
+#: each current-mode control and with a closed loop (with and without mixed decay), and the demo with each current-mode control.
 def budget_shapes() -> list[tuple[str, object]]:
     shapes = [(name, example_design(name)) for name in
               ("demo-valve", "door-latch-24v", "locker-latch-12v", "pinch-valve-48v", "relay-12v",
@@ -198,6 +198,8 @@ def budget_shapes() -> list[tuple[str, object]]:
             "dosing-valve-bridge-24v", ("[hold]\n", f'[hold]\nmode = "current"\ncontrol = "{control}"\n'))))
     shapes.append(("dosing-valve-bridge-24v closed-loop", example_design(
         "dosing-valve-bridge-24v", ("[hold]\n", '[hold]\nregulation = "closed_loop"\n'))))
+    shapes.append(("dosing-valve-bridge-24v closed-loop mixed", example_design(
+        "dosing-valve-bridge-24v", ("[hold]\n", '[hold]\nregulation = "closed_loop"\nfast_fraction = 0.3\n'))))
     return shapes
 
 
