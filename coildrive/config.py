@@ -1547,10 +1547,11 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,
-                  supply: Supply, hold: Hold) -> None:
+                  supply: Supply, hold: Hold, coil: Coil) -> None:
     """What a full bridge needs: its freewheel path is its switches' body diodes (type
     "diode", no split decay: the bridge decays slowly and fast by itself), mixed decay only
-    under a fixed or supply-table hold (a current-mode or closed-loop hold decays slowly),
+    under a fixed, supply-table or closed-loop hold (a current-mode hold decays slowly; a
+    closed loop's mixed decay on a linear coil only),
     and with a supply that cannot sink the returned
     energy, the bulk capacitance. (The supply's ``sink`` and
     ``capacitance`` keys mean nothing to the other topologies, which return no energy.)"""
@@ -1569,11 +1570,17 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
         raise InputError(fw_origins.get("split_decay", source), "freewheel.split_decay",
                          "a full bridge decays slowly in the hold and fast at the release by itself: "
                          "expected split_decay left out")
-    if hold.regulation in ("current", "closed_loop") and hold.fast_fraction > 0:
-        what = "hold.mode = \"current\"" if hold.mode == "current" else "regulation = \"closed_loop\""
-        raise InputError(source, "hold.fast_fraction", f"{hold.fast_fraction:g} with {what}: a full "
-                         "bridge's regulated hold decays slowly (the two low-side switches), expected "
-                         "0 or the key left out (mixed decay: a fixed or supply-table hold)")
+    if hold.regulation == "current" and hold.fast_fraction > 0:
+        raise InputError(source, "hold.fast_fraction", f"{hold.fast_fraction:g} with hold.mode = "
+                         "\"current\": a full bridge's current-mode hold decays slowly (the two "
+                         "low-side switches), expected 0 or the key left out (mixed decay: a fixed, "
+                         "supply-table or closed-loop hold)")
+    if (hold.regulation == "closed_loop" and hold.fast_fraction > 0
+            and (coil.eddy_resistance or coil.flux_current)):
+        raise InputError(source, "hold.fast_fraction", f"{hold.fast_fraction:g} with regulation = "
+                         "\"closed_loop\" on a coil with an eddy term or a flux-linkage curve: the "
+                         "loop's mixed-decay sample is modelled for a linear coil only, expected 0 or "
+                         "the key left out (or a linear coil)")
     if not supply.sink and not supply.capacitance > 0:
         raise InputError(source, "supply.capacitance", "missing: with sink = false the returned "
                          "energy lands on the bulk capacitance, expected its value (e.g. \"470 uF\")")
@@ -1838,7 +1845,7 @@ def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_
         fw_board = {k: v for k, v in fw_board.items() if k == "type" or v}
     merged, origins = _merged(brd.source, fw_board, source, fw_drive)
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
-    _check_bridge(source, origins, switch, freewheel, supply, hold)
+    _check_bridge(source, origins, switch, freewheel, supply, hold, coil)
     _check_droop(source, coil, switch, supply, armature, hold)
     _check_boost(source, origins, coil, switch, freewheel, supply, hold, pull_in, armature, duty)
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:

@@ -179,8 +179,9 @@ def budget_script(d) -> list[tuple[str, int]]:
 
 #: Drive shapes whose handlers the budget covers: every bundled example (the closed-loop
 #: one included), the bridge example with a moving armature, with a mixed-decay hold, with
-#: each current-mode control and with a closed loop, the demo with each current-mode control,
-#: and the boost example with a current-mode hold and with a closed loop.
+#: each current-mode control and with a closed loop (with and without mixed decay), the demo
+#: with each current-mode control, and the boost example with a current-mode hold and with a
+#: closed loop.
 def budget_shapes() -> list[tuple[str, object]]:
     shapes = [(name, example_design(name)) for name in
               ("demo-valve", "door-latch-24v", "locker-latch-12v", "pinch-valve-48v", "relay-12v",
@@ -204,6 +205,8 @@ def budget_shapes() -> list[tuple[str, object]]:
     for label, line in (("current", 'mode = "current"'), ("closed-loop", 'regulation = "closed_loop"')):
         shapes.append((f"fuel-valve-boost-12v {label}", example_design(
             "fuel-valve-boost-12v", ('frequency = "50 kHz"', f'frequency = "50 kHz"\n{line}'))))
+    shapes.append(("dosing-valve-bridge-24v closed-loop mixed", example_design(
+        "dosing-valve-bridge-24v", ("[hold]\n", '[hold]\nregulation = "closed_loop"\nfast_fraction = 0.3\n'))))
     return shapes
 
 

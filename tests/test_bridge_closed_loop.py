@@ -91,6 +91,26 @@ def test_plant_on_the_slow_path_and_margins_match_scipy_signal(cl, common_return
     assert d.release.peak_switch_voltage_v == pytest.approx(d.topology.bridge.pumped_switch_voltage_v)
 
 
+def corner_loop(d, label):
+    """``(corner, its Loop)``: design ``d``'s corner ``label`` with its resistance and
+    inductance factors (nominal diode and sense parts)."""
+    drive = d.drive
+    c = next(c for c in d.corners if c.label == label)
+    rf = c.resistance_ohm / float(loop(drive, c.supply_v, c.coil_temp_c).r_coil)
+    lf = c.inductance_h / drive.coil.inductance
+    return c, loop(drive, c.supply_v, c.coil_temp_c, rf, lf)
+
+
+def ngspice_board(tmp_path):
+    """The bundled bridge board with tests/test_reference_ngspice_bridge.py's switch."""
+    from test_reference_ngspice_bridge import R_SW
+
+    board = tmp_path / "bridge.toml"
+    board.write_text((BOARDS / "bridge-m32-fast.toml").read_text().replace(
+        'on_resistance = "40 mohm"', f'on_resistance = "{R_SW * 1e3:g} mohm"'))
+    return board
+
+
 def test_settled_sample_matches_solve_ivp_on_the_slow_path(cl):
     """At the corner with the most duty the loop's duty puts the middle-of-period sample at
     the set-point: scipy's solve_ivp of ``L di/dt = V - (R + 2 R_sw + R_s) i`` on and
@@ -101,10 +121,7 @@ def test_settled_sample_matches_solve_ivp_on_the_slow_path(cl):
 
     _, d = cl
     r, drive = d.hold.closed_loop, d.drive
-    c = next(c for c in d.corners if c.label == r.max_duty_corner)
-    rf = c.resistance_ohm / float(loop(drive, c.supply_v, c.coil_temp_c).r_coil)
-    lf = c.inductance_h / drive.coil.inductance
-    lp = loop(drive, c.supply_v, c.coil_temp_c, rf, lf)
+    c, lp = corner_loop(d, r.max_duty_corner)
     f = d.timer.frequency_hz
     target, ss = sample_at(r.max_duty, f, lp, False)
     sw, rs = drive.switch.on_resistance, drive.board.sense.resistance
@@ -137,13 +154,11 @@ def test_settled_hold_matches_ngspice(tmp_path, kind):
     from ngspice_run import run
     from test_bridge_eddy import R_E, _eddy
     from test_flux_ngspice import CURVE_I, _psi
-    from test_reference_ngspice_bridge import COILS, EDGE, L_COIL, R_COIL, R_SW, V_SUP, _coil_netlist, _netlist
+    from test_reference_ngspice_bridge import COILS, EDGE, L_COIL, R_COIL, V_SUP, _coil_netlist, _netlist
     from coildrive.design.loop_duty import sample_at, settled_duty
     from coildrive.model import flux
 
-    board = tmp_path / "bridge.toml"
-    board.write_text((BOARDS / "bridge-m32-fast.toml").read_text().replace(
-        'on_resistance = "40 mohm"', f'on_resistance = "{R_SW * 1e3:g} mohm"'))
+    board = ngspice_board(tmp_path)
     table = ", ".join(f'"{x * 1e3:.9f} mWb"' for x in _psi(CURVE_I))
     coil = (f"flux_current = {CURVE_I}\nflux_linkage = [{table}]" if kind == "curve" else
             f'inductance = "{L_COIL * 1e3:g} mH"')
@@ -202,11 +217,14 @@ def test_compiled_driver_in_the_loop_holds_the_set_point(cl, tmp_path):
 
 
 def test_what_a_closed_loop_bridge_refuses_is_one_line(tmp_path):
+    """Mixed decay under the loop is designed on a linear coil only (tests/
+    test_bridge_closed_loop_mixed.py); the sweep is refused as for one switch."""
     path = _variant(tmp_path, ('frequency = "20 kHz"\nregulation = "closed_loop"\n',
-                               'frequency = "20 kHz"\nregulation = "closed_loop"\nfast_fraction = 0.3\n'))
+                               'frequency = "20 kHz"\nregulation = "closed_loop"\nfast_fraction = 0.3\n'),
+                    ('inductance = "70 mH"', 'inductance = "70 mH"\neddy_resistance = "2 kohm"'))
     with pytest.raises(InputError) as err:
         load_drive(path)
-    assert "hold.fast_fraction" in str(err.value) and "regulated hold decays slowly" in str(err.value)
+    assert "hold.fast_fraction" in str(err.value) and "linear coil only" in str(err.value)
     r = run_cli("tune", str(_variant(tmp_path, name="t.toml")))   # as for one switch
     assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1 and "hold.regulation" in r.stderr
 

@@ -183,10 +183,9 @@ def test_simulate_switches_the_slow_decay_in_the_hold_and_the_fast_at_the_releas
     assert t[k] - t_off == pytest.approx(t_drop, abs=float(t[k] - t[k - 1]))
 
 
-def simulated_phases(path, tmp_path):
+def simulate_csv(path, tmp_path):
     """`coildrive simulate` of ``path`` at 24 V, 20 degC with a 20 ms hold (a subprocess):
-    ``(columns, final turn-off s, the last 5 ms of the hold)``, the bridge's phases checked:
-    every off-time there Q2 + Q4 (slow decay), every on-time Q1 + Q4, all four open after."""
+    ``(columns, final turn-off s, the last 5 ms of the hold, its off-time samples)``."""
     csv = tmp_path / "w.csv"
     r = run_cli("simulate", str(path), "--supply", "24", "--coil-temp", "20", "--hold-time", "20 ms",
                 "--csv", str(csv))
@@ -195,7 +194,14 @@ def simulated_phases(path, tmp_path):
     t, on = w["time_s"], w["switch_on"]
     t_off = t[np.flatnonzero(on == 1)[-1]]
     settled = (t > t_off - 5e-3) & (t < t_off)
-    off = settled & (on == 0)
+    return w, t_off, settled, settled & (on == 0)
+
+
+def simulated_phases(path, tmp_path):
+    """:func:`simulate_csv` with the bridge's phases checked: every off-time of the last
+    5 ms Q2 + Q4 (slow decay), every on-time Q1 + Q4, all four open after."""
+    w, t_off, settled, off = simulate_csv(path, tmp_path)
+    t, on = w["time_s"], w["switch_on"]
     assert off.sum() > 50 and np.all(w["low_a_on"][off] == 1) and np.all(w["high_a_on"][off] == 0)
     assert np.all(w["low_b_on"][settled] == 1) and np.all(w["high_a_on"][settled & (on == 1)] == 1)
     after = t > t_off
@@ -235,7 +241,7 @@ def device_checks(d, tmp_path):
 
 @pytest.mark.parametrize("edit, key, fragment", [
     (('frequency = "20 kHz"\nmode = "current"\n', 'frequency = "20 kHz"\nmode = "current"\nfast_fraction = 0.3\n'),
-     "hold.fast_fraction", "regulated hold decays slowly"),
+     "hold.fast_fraction", "current-mode hold decays slowly"),
 ])
 def test_what_a_current_mode_bridge_refuses_is_one_line(tmp_path, edit, key, fragment):
     path = _variant(tmp_path, edit)

@@ -21,6 +21,12 @@ loop sets the next period's compare so that the reading sits at a set-point code
 
 The peak, the release and every other figure are built as for the voltage-mode hold
 (:mod:`coildrive.design.figures`, :mod:`coildrive.design.checks`).
+
+A full bridge's mixed decay (``hold.fast_fraction``, a linear coil): each off-time the
+loop's compare leaves starts fast for that fraction of it, then decays slowly -- the
+loop's :class:`~coildrive.model.circuit.Loop` carries it, so the sample, the settled
+duty, every steady state and the averaged plant are the three-segment orbit's
+(:mod:`coildrive.design.loop_duty`, :mod:`coildrive.design.loop_gains`).
 """
 
 from __future__ import annotations
@@ -286,7 +292,7 @@ def _loop(drive, env, lp, res_low, duty, f, period, setpoint, lsb, min_compare, 
     k_set = worst(t_settle)
     # one compare count of current at each corner: the change of the mean per count
     up = pwm_steady_state(np.minimum(duty + 1.0 / period, 1.0), f, lp.v_on, lp.r_on, lp.r_off,
-                          lp.v_off, lp.inductance).mean
+                          lp.v_off, lp.inductance, mixed=lp.mixed).mean
     step = float(np.max(up - res_low.hold.mean))
     k_dmin, k_dmax = worst(duty, largest=False), worst(duty)
     plants = []

@@ -38,8 +38,11 @@ def codes_per_amp(drive: Drive) -> float:
 
 def sample_at(duty, frequency: float, lp, switch_leg: bool):
     """``(current at the sampling instant A, the PWM steady state)`` at ``duty``: the middle
-    of the on-time (switch leg) or of the period (coil path, the on-time first)."""
-    ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
+    of the on-time (switch leg) or of the period (coil path, the on-time first). A full
+    bridge's mixed-decay hold (``lp.mixed``): the off-time decays fast for its fraction of
+    the off-time, then slowly; the mid-period sample may fall in either part."""
+    ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance,
+                          mixed=lp.mixed)
     t = 1.0 / frequency
     t_on = np.asarray(duty, float) * t
     on_sensed, off_sensed = _sensed(lp)
@@ -47,7 +50,14 @@ def sample_at(duty, frequency: float, lp, switch_leg: bool):
         return on_sensed(rise_current(0.5 * t_on, ss.i_min, lp.v_on, lp.r_on, lp.inductance)), ss
     mid = 0.5 * t
     on = rise_current(np.minimum(mid, t_on), ss.i_min, lp.v_on, lp.r_on, lp.inductance)
-    off = decay_current(np.maximum(mid - t_on, 0.0), ss.i_max, lp.r_off, lp.v_off, lp.inductance)
+    late = np.maximum(mid - t_on, 0.0)
+    if lp.mixed is not None:   # the fast part first (two body diodes into the bus), then slow
+        t_fast = lp.mixed.fraction * (t - t_on)
+        top = decay_current(np.minimum(late, t_fast), ss.i_max, lp.mixed.r_fast, lp.mixed.v_fast,
+                            lp.inductance)
+        off = decay_current(np.maximum(late - t_fast, 0.0), top, lp.r_off, lp.v_off, lp.inductance)
+    else:
+        off = decay_current(late, ss.i_max, lp.r_off, lp.v_off, lp.inductance)
     return np.where(mid <= t_on, on_sensed(on), off_sensed(off)), ss
 
 
@@ -131,7 +141,8 @@ def regulated_duty(drive: Drive, lp, target, frequency: float, switch_leg: bool,
     there (at ``MAX_DUTY`` where saturated)."""
     d = duty_for_sample(target, frequency, lp, switch_leg, floor, MAX_DUTY)
     run = np.where(np.isnan(d), MAX_DUTY, d)
-    ss = pwm_steady_state(run, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance)
+    ss = pwm_steady_state(run, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance,
+                          mixed=lp.mixed)
     return d, run, ss
 
 
