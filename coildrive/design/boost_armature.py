@@ -145,3 +145,23 @@ def peak_heat(drive: Drive, lp, peak_time) -> np.ndarray:
         sq = np.where(hit, np.where(hit, pin.trip_state[4], 0.0) + i_end**2 * dt, i_trip**2 * t_out)
         heat = np.maximum(heat, sq)
     return (flat.r_coil * heat).reshape(shape)
+
+
+def sampled_pull_in(drive: Drive, res, v_factor, c_factor, duty, timeout):
+    """``res`` (evaluated points, with their armature runs) with each point's pull-in time
+    from its own boost: the boost voltage x ``v_factor`` and its capacitance x ``c_factor``
+    (arrays over the points: the tolerance Monte Carlo's draws), the armature's run from it
+    until the threshold itself (the earliest trip, as the envelope's pull-in run), then the
+    hold at ``duty`` (per point) from the main supply until it seats or the time-out
+    ``timeout`` s (per point) has passed -- the seat time, ``inf`` where not seated by then."""
+    from .boost import threshold
+
+    s = drive.supply
+    p = res.armature.params
+    n = len(p)
+    pb = boost_params(p, s.boost * np.asarray(v_factor, float), s.boost_capacitance * np.asarray(c_factor, float),
+                      s.boost_resistance)
+    per_point = (lambda x: np.ravel(np.broadcast_to(np.asarray(x, float), (n,))))
+    pin = boosted_pull_in(pb, p, threshold(drive)[0], per_point(duty), per_point(res.hold.period),
+                          per_point(timeout), per_point(res.hold.i_max))
+    return replace(res, pull_in_time=pin.seat_time.reshape(np.shape(res.pull_in_time)))
