@@ -1487,8 +1487,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     mode), a peak that ends at its threshold. A moving armature
     (:mod:`coildrive.model.armature_boost`): a linear coil (an eddy term too), a
     voltage-mode hold (fixed or supply table; on a full bridge slow decay, no mixed decay;
-    or the closed loop, where the design finds the armature seated within the peak at every
-    corner: :func:`coildrive.design.boost_armature.require_seated_in_peak`), an inelastic seat (no restitution), an on/off cycle without an eddy term
+    or the closed loop) or a current-mode hold -- the two regulated ones where the design
+    finds the armature seated within the peak at every corner
+    (:func:`coildrive.design.boost_armature.require_seated_in_peak`), an inelastic seat (no restitution), an on/off cycle without an eddy term
     (the peak's heat is the run's copper integral: :func:`coildrive.design.boost_armature.peak_heat`).
     Anything else is refused in one line."""
     if not supply.boosted:
@@ -1517,9 +1518,6 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = "hold.mode", ("a latching coil (set and reset pulses from the boost would each end at a "
                                  "current threshold of their own, with the boost switch in the latch "
                                  "driver and its device: not built yet)")
-    elif armature is not None and hold.mode == "current":
-        key, why = "hold.mode", ("a current-mode hold and a moving armature (its thresholds would switch "
-                                 "on the coil while the armature may still be in flight after the peak)")
     elif armature is not None and supply.droops:
         key, why = "supply.source_resistance", "a drooping main supply and a moving armature together"
     elif armature is not None and armature.restitution > 0:
@@ -1545,8 +1543,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "diode/zener/resistor freewheel (split decay too) or a clamp, a stiff "
                          "main supply (or a drooping one: a linear coil on one switch, no [armature]), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
-                         "with [armature]: no restitution, a voltage-mode hold without mixed "
-                         "decay, no [duty] with an eddy term")
+                         "with [armature]: no restitution, no mixed decay, no [duty] with an eddy term")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,

@@ -275,8 +275,8 @@ def test_simulate_runs_the_peak_from_the_boost_and_the_armature_onto_the_seat(tm
 
 
 def test_what_stays_refused_is_refused_in_one_line(tmp_path):
-    """A bouncing armature, a current-mode hold, an on/off cycle with an eddy term and a full
-    bridge's mixed decay stay refused with a moving armature on the boosted peak: one line
+    """A bouncing armature, an on/off cycle with an eddy term and a full bridge's mixed decay
+    stay refused with a moving armature on the boosted peak: one line
     naming the key (exit 2)."""
     from coildrive.config import load_drive
     from coildrive.errors import InputError
@@ -284,7 +284,6 @@ def test_what_stays_refused_is_refused_in_one_line(tmp_path):
     text = EXAMPLE.read_text().replace('board = "lab-m32-zener"',
                                        f'board = "{EXAMPLES.parent / "boards" / "lab-m32-zener.toml"}"')
     cases = {
-        "hold.mode": text.replace('frequency = "60 kHz"', 'frequency = "60 kHz"\nmode = "current"'),
         "duty": text.replace("inductance_tolerance = 0.10",
                              'inductance_tolerance = 0.10\neddy_resistance = "200 ohm"')
         + '\n[duty]\non_time = "5 ms"\noff_time = "20 ms"\n',
@@ -498,10 +497,13 @@ def test_the_monte_carlo_flies_each_sample_from_its_own_boost():
     assert out["monte_carlo"]["pull_in_time_s"]["max"] <= out["pull_in"]["time_s"]
 
 
-def test_a_closed_loop_hold_where_the_armature_seats_within_the_peak(tmp_path):
-    """``hold.regulation = "closed_loop"``: with the example's threshold the armature is still
-    in flight when the peak ends at its latest corner (the loop's transient after the
-    threshold would carry it: refused in one line naming that corner, exit 2); with the
+@pytest.mark.parametrize("key,line", [("hold.regulation", 'regulation = "closed_loop"'),
+                                      ("hold.mode", 'mode = "current"')])
+def test_a_regulated_hold_where_the_armature_seats_within_the_peak(tmp_path, key, line):
+    """A closed-loop or a current-mode hold: with the example's threshold the armature is still
+    in flight when the peak ends at its latest corner (the loop's transient, or the
+    thresholds' switching, after the threshold would carry it: refused in one line naming
+    that corner, exit 2); with the
     threshold at 1.8 x pull-in on a board with 3.3 A full scale it seats within the peak at
     every corner and designs (exit 0), its latest seat in the peak against solve_ivp
     (DOP853) on the equations written afresh within 1e-5 (the hold plays no part there),
@@ -509,12 +511,12 @@ def test_a_closed_loop_hold_where_the_armature_seats_within_the_peak(tmp_path):
     from coildrive.config import load_drive
     from coildrive.model.circuit import loop
 
-    text = EXAMPLE.read_text().replace('frequency = "60 kHz"', 'regulation = "closed_loop"\nfrequency = "60 kHz"')
+    text = EXAMPLE.read_text().replace('frequency = "60 kHz"', line + '\nfrequency = "60 kHz"')
     refused = tmp_path / "refused.toml"
     refused.write_text(text.replace('board = "lab-m32-zener"',
                                     f'board = "{EXAMPLES.parent / "boards" / "lab-m32-zener.toml"}"'))
     r = run_cli("design", str(refused), cwd=EXAMPLES)
-    assert r.returncode == 2 and "hold.regulation" in r.stderr and "not yet seated" in r.stderr
+    assert r.returncode == 2 and key in r.stderr and "not yet seated" in r.stderr
     assert r.stderr.count("\n") == 1
     path = tmp_path / "loop.toml"
     path.write_text(text.replace('board = "lab-m32-zener"',
@@ -524,7 +526,7 @@ def test_a_closed_loop_hold_where_the_armature_seats_within_the_peak(tmp_path):
     assert r.returncode == 0, r.stderr
     out = json.loads(r.stdout)
     a = out["armature"]
-    assert out["hold"]["regulation"] == "closed_loop" and a["seated_in_peak_corners"] == a["corners"]
+    assert out["hold"]["regulation"] == line.split('"')[1] and a["seated_in_peak_corners"] == a["corners"]
     drive = load_drive(path)
     corner = next(c for c in out["corners"] if c["label"] == a["seat_corner"])
     lp = loop(drive, np.array([corner["supply_v"]]), np.array([corner["coil_temp_c"]]),
@@ -541,4 +543,4 @@ def test_a_closed_loop_hold_where_the_armature_seats_within_the_peak(tmp_path):
     r = run_cli("simulate", str(path), "--supply", "9", "--coil-temp", "100", "--hold-time", "0.002",
                 "--csv", str(csv), cwd=EXAMPLES)
     assert r.returncode == 0, r.stderr
-    assert "closed_loop" in r.stderr and "seated at" in r.stderr
+    assert line.split('"')[1] in r.stderr and "seated at" in r.stderr
