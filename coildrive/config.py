@@ -1486,9 +1486,12 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
     mode), a peak that ends at its threshold. A moving armature
     (:mod:`coildrive.model.armature_boost`): a linear coil (an eddy term too), a
-    voltage-mode open-loop hold (fixed or supply table; on a full bridge slow decay, no
-    mixed decay), an inelastic seat (no restitution), no on/off cycle. Anything else is
-    refused in one line."""
+    voltage-mode hold (fixed or supply table; on a full bridge slow decay, no mixed decay;
+    or the closed loop) or a current-mode hold -- the two regulated ones where the design
+    finds the armature seated within the peak at every corner
+    (:func:`coildrive.design.boost_armature.require_seated_in_peak`), an inelastic seat (no restitution), an on/off cycle without an eddy term
+    (the peak's heat is the run's copper integral: :func:`coildrive.design.boost_armature.peak_heat`).
+    Anything else is refused in one line."""
     if not supply.boosted:
         return
     if supply.boost * (1.0 - supply.boost_tolerance) <= supply.max:
@@ -1515,9 +1518,6 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = "hold.mode", ("a latching coil (set and reset pulses from the boost would each end at a "
                                  "current threshold of their own, with the boost switch in the latch "
                                  "driver and its device: not built yet)")
-    elif armature is not None and (hold.mode == "current" or hold.regulation == "closed_loop"):
-        key = "hold.mode" if hold.mode == "current" else "hold.regulation"
-        why = ("a current-mode" if hold.mode == "current" else "a closed-loop") + " hold and a moving armature"
     elif armature is not None and supply.droops:
         key, why = "supply.source_resistance", "a drooping main supply and a moving armature together"
     elif armature is not None and armature.restitution > 0:
@@ -1525,8 +1525,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                                             "bound holds while the armature closes or rests)")
     elif armature is not None and hold.fast_fraction > 0:
         key, why = "hold.fast_fraction", "a moving armature and a full bridge's mixed-decay hold together"
-    elif armature is not None and duty is not None:
-        key, why = "duty", "a moving armature and an on/off cycle ([duty]) together"
+    elif armature is not None and duty is not None and coil.eddy_resistance:
+        key, why = "duty", ("a moving armature, an eddy-current term and an on/off cycle ([duty]) "
+                            "together (the peak's core loss in the run is not bounded)")
     elif pull_in.compensate:
         key, why = "pull_in.compensate", ("a supply-compensated peak (the boosted peak runs from the boost, "
                                           "not the main supply, and ends at its threshold: nothing to compensate)")
@@ -1542,8 +1543,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "diode/zener/resistor freewheel (split decay too) or a clamp, a stiff "
                          "main supply (or a drooping one: a linear coil on one switch, no [armature]), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
-                         "with [armature]: no restitution, a voltage-mode open-loop hold without mixed "
-                         "decay, no [duty]")
+                         "with [armature]: no restitution, no mixed decay, no [duty] with an eddy term")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,

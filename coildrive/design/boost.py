@@ -104,10 +104,13 @@ def firmware_peak(design, supply: float, coil_temp: float, r_factor: float = 1.0
     drive = design.drive
     s = drive.supply
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
-    if drive.armature is not None:   # the moving armature's run from the boost
+    if drive.armature is not None:   # the moving armature's run from the boost at its nominal
         from ..model.armature import params_from_loop
-        from .boost_armature import nominal_trip_time
-        t = nominal_trip_time(drive, params_from_loop(drive.armature, lp, l_factor), nominal_trip(drive))
+        from ..model.armature_boost import boost_params
+        from ..model.armature_runs import pull_in
+        pb = boost_params(params_from_loop(drive.armature, lp, l_factor), s.boost, s.boost_capacitance,
+                          s.boost_resistance)
+        t = float(pull_in(pb, trip=nominal_trip(drive)).trip_time[0])
         return min(t, design.pull_in.peak_time_s or 0.0)
     b = at_boost(drive, s.boost, s.boost_capacitance, lp.r_on, lp.inductance)
     t = float(model.of(b).threshold_time(nominal_trip(drive), b, sensed=True))
@@ -164,11 +167,14 @@ def peak_heat(drive: Drive, lp, peak_time) -> np.ndarray:
     return heat
 
 
-def shortest_peak(drive: Drive, lp, peak_time) -> np.ndarray:
+def shortest_peak(drive: Drive, lp, peak_time, inductance=None) -> np.ndarray:
     """The shortest boosted peak at the points of ``lp`` (s): the boost at its highest until
     the firmware sees the threshold, or ``peak_time`` s if sooner. The hold that follows
-    runs for the rest of an on-time, so its heat takes this (the longest hold)."""
-    return np.minimum(_seen(drive, _boost(drive, lp, lp.inductance, True)), peak_time)
+    runs for the rest of an on-time, so its heat takes this (the longest hold).
+    ``inductance``: the coil's (H) if not the loop's (a moving armature's open coil, whose
+    rise is no slower than the moving armature's)."""
+    coil = lp.inductance if inductance is None else inductance
+    return np.minimum(_seen(drive, _boost(drive, lp, coil, True)), peak_time)
 
 
 def sampled_pull_in(drive: Drive, res, v_factor, c_factor):

@@ -29,9 +29,11 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from ..config import Drive
-from ..model.armature import ArmatureParams
-from ..model.armature_boost import boost_energy, boost_params, boosted_pull_in
+from ..errors import InputError
+from ..model.armature import ArmatureParams, params_from_loop
+from ..model.armature_boost import boost_energy, boost_params, boosted_pull_in, seated_in_peak
 from ..model.armature_runs import PullInBatch, pull_in
+from ..model.circuit import Loop
 from ..model.rl import rise_current
 from .timer import conversion_period
 
@@ -115,10 +117,66 @@ def runs(drive: Drive, p: ArmatureParams, duty, period, i_top, thresholds: tuple
                      duty=np.broadcast_to(np.asarray(duty, float), (len(p),)).copy(), window=until)
 
 
-def nominal_trip_time(drive: Drive, p: ArmatureParams, trip: float) -> float:
-    """The boosted peak the firmware runs at one point (``p``, one point): from the boost at
-    its nominal voltage and capacitance until the armature run's current reaches ``trip`` A
-    (s; ``inf`` where never)."""
+def peak_heat(drive: Drive, lp, peak_time) -> np.ndarray:
+    """J the coil's copper takes in one boosted peak with the moving armature at the points
+    of ``lp`` (an on/off cycle's peak, :func:`coildrive.design.thermal_cycle.peak_heat`):
+    ``R_coil int i^2 dt`` of the armature's run from the boost (the run's own ``sq``,
+    :func:`~coildrive.model.armature_runs.pull_in` with the highest trip current) to the
+    threshold, plus the one conversion after it at the most current over it
+    (:func:`_end`'s stiff open-coil bound), from the boost at its lowest (the longest peak)
+    and at its highest (the most current), the larger. Where the run never reaches the
+    highest trip current the current stays below it for the whole time-out ``peak_time``
+    s: ``R_coil i_trip^2 peak_time`` bounds it. A linear coil without an eddy term."""
+    from .boost import threshold
+
+    fields = ("v_on", "r_on", "r_off", "v_off", "inductance", "r_coil", "supply")
+    shape = np.broadcast_shapes(*(np.shape(getattr(lp, f)) for f in fields))
+    flat = Loop(*(np.ravel(np.broadcast_to(getattr(lp, f), shape)).astype(float) for f in fields))
+    # (the loop's inductance is the seated one x the tolerance factor: circuit.loop)
+    p = params_from_loop(drive.armature, flat, flat.inductance / drive.armature.inductance_closed)
+    i_trip = threshold(drive)[2]
+    dt = conversion_period(drive)
+    t_out = np.ravel(np.broadcast_to(np.asarray(peak_time, float), shape))
+    heat = np.zeros(len(p))
+    for high in (False, True):
+        pb = _boost(drive, p, high)
+        pin = pull_in(pb, trip=i_trip)
+        _, i_end, _, _ = _end(drive, pb, pin, i_trip)
+        hit = np.isfinite(pin.trip_time)
+        sq = np.where(hit, np.where(hit, pin.trip_state[4], 0.0) + i_end**2 * dt, i_trip**2 * t_out)
+        heat = np.maximum(heat, sq)
+    return (flat.r_coil * heat).reshape(shape)
+
+
+def sampled_pull_in(drive: Drive, res, v_factor, c_factor, duty, timeout):
+    """``res`` (evaluated points, with their armature runs) with each point's pull-in time
+    from its own boost: the boost voltage x ``v_factor`` and its capacitance x ``c_factor``
+    (arrays over the points: the tolerance Monte Carlo's draws), the armature's run from it
+    until the threshold itself (the earliest trip, as the envelope's pull-in run), then the
+    hold at ``duty`` (per point) from the main supply until it seats or the time-out
+    ``timeout`` s (per point) has passed -- the seat time, ``inf`` where not seated by then."""
+    from .boost import threshold
+
     s = drive.supply
-    pb = boost_params(p, s.boost, s.boost_capacitance, s.boost_resistance)
-    return float(pull_in(pb, trip=trip).trip_time[0])
+    p = res.armature.params
+    n = len(p)
+    pb = boost_params(p, s.boost * np.asarray(v_factor, float), s.boost_capacitance * np.asarray(c_factor, float),
+                      s.boost_resistance)
+    per_point = (lambda x: np.ravel(np.broadcast_to(np.asarray(x, float), (n,))))
+    pin = boosted_pull_in(pb, p, threshold(drive)[0], per_point(duty), per_point(res.hold.period),
+                          per_point(timeout), per_point(res.hold.i_max))
+    return replace(res, pull_in_time=pin.seat_time.reshape(np.shape(res.pull_in_time)))
+
+
+def require_seated_in_peak(drive: Drive, label, pin: PullInBatch, key: str, hold: str, why: str) -> None:
+    """Refuse in one line (``key``) a ``hold`` that is not modelled with the armature moving
+    (``why``, in words), where the pull-in run ``pin`` (the envelope's: the boost at its
+    lowest until the threshold itself, the shortest push any real peak gives) has the
+    armature not yet on the seat when the peak ends; ``label(k)`` names point ``k``."""
+    late = np.flatnonzero(~seated_in_peak(pin))
+    if late.size:
+        k = int(late[np.argmax(pin.seat_time[late])])
+        raise InputError(drive.source, key, f"{hold} after the boosted peak is modelled with a moving "
+                         "armature only where it seats within the peak, and at "
+                         f"{label(k)} it is not yet seated when the peak ends ({why}): expected a higher threshold "
+                         "(pull_in.current_margin) or a voltage-mode hold")

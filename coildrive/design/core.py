@@ -32,9 +32,6 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
         raise InputError(drive.source, "hold.mode", "\"latch\": a latching coil is designed and "
                          "simulated by coildrive design and coildrive simulate only; this command "
                          "runs a peak-and-hold drive")
-    if samples > 0:   # before the design's work: what the Monte Carlo refuses
-        from .montecarlo import refuse_unsampled
-        refuse_unsampled(drive)
     out = strategy_for(drive).design(drive, samples, seed)
     if uses_datasheet(drive):
         sheet = datasheet_result(drive, out.release)

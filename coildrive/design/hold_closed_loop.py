@@ -179,6 +179,11 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     short, long_ = pk.short_time, pk.long_time
     res_low = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor, run_low, f,
                        short, reuse=first, **at)
+    if drive.supply.boosted and res_low.armature is not None:
+        from .boost_armature import require_seated_in_peak
+        require_seated_in_peak(drive, env.label, res_low.armature.pull_in, "hold.regulation",
+                               "a closed-loop hold", "the loop cutting the duty while the reading is "
+                               "above the set-point would carry the armature in flight")
     res = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor, run_high, f,
                    long_, **at)
     res = boosted_points(drive, res)   # a boosted peak's highest end current and turn-off

@@ -347,8 +347,11 @@ def evaluate_current(drive: Drive, th: Thresholds, supply, ambient, r_factor, l_
         # the peak with the moving armature, the hold's switching cycle on the seated coil
         # (lp.inductance is inductance_closed) for its force, the release from the top of
         # the band until the armature is back on the open stop
+        # (a boosted peak: the hold after the threshold is flown only where the armature is
+        # not yet seated there, which the design refuses -- :func:`design`; duty 0 keeps
+        # that flight finite)
         arm, t_pull, i_peak, t_drop, t_zero, energy, i_fast = moving_armature(
-            drive, lp, lp_rel, l_factor, ss, peak_time, None, np.shape(supply), i_fast)
+            drive, lp, lp_rel, l_factor, ss, peak_time, None, np.shape(supply), i_fast, 0.0)
     interrupt, v_sw = switch_voltage_peak(drive, lp, lp_rel, i_peak, ss.i_max, i_fast)
     res = PointResults(supply=supply, ambient=ambient, coil_temp=temp, r_factor=r_factor,
                        l_factor=l_factor, loop=lp, pull_in_time=t_pull, peak_end_current=i_peak,
@@ -429,6 +432,11 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
         th = choose_thresholds(drive, grid, peak_time)
         first, _ = evaluate_current(drive, th, grid.supply, grid.ambient, grid.r_factor,
                                     grid.l_factor, 0.0, heat_peak=peak_time)
+        if drive.supply.boosted and first.armature is not None:
+            from .boost_armature import require_seated_in_peak
+            require_seated_in_peak(drive, grid.label, first.armature.pull_in, "hold.mode",
+                                   "a current-mode hold", "its thresholds would switch the coil with "
+                                   "the armature moving")
         pk = plan_peak(drive, grid, first)
         longer = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate
         if not cycling(drive) or longer <= peak_time:

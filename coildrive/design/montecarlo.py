@@ -5,7 +5,8 @@ inductance uniformly within their tolerance, or normally with the tolerance read
 3 sigma (clipped at the tolerance) when the drive file says ``tolerance_distribution =
 "normal"``; a boosted peak's boost voltage and capacitance likewise within their
 tolerances (each sample's pull-in from its own boost; its peak is the time-out, which
-ends it only if the threshold -- above the pull-in current -- comes later). Each sample is evaluated with the same closed-form model as the corners (the
+ends it only if the threshold -- above the pull-in current -- comes later; with a moving
+armature its run from that boost into the hold, to the seat within the time-out). Each sample is evaluated with the same closed-form model as the corners (the
 coil at the temperature a long hold settles at there, or with an on/off cycle and a heat
 capacity the hottest over the cycle).
 
@@ -21,7 +22,6 @@ from __future__ import annotations
 import numpy as np
 
 from ..config import Drive
-from ..errors import InputError
 from .boost import sampled_pull_in
 from .bridge_bus import release_time
 from .evaluate import evaluate
@@ -61,15 +61,6 @@ def _figures(drive: Drive, res, peak_time) -> tuple:
             release_time(drive, res, peak_time))
 
 
-def refuse_unsampled(drive: Drive) -> None:
-    """Raise the one-line refusal (``--samples``) for a drive the Monte Carlo does not cover:
-    a boosted peak with a moving armature (each sample would need its own boost run and
-    hold flight)."""
-    if drive.armature is not None and drive.supply.boosted:
-        raise InputError("--samples", "", "the Monte Carlo does not cover a boosted peak with a moving "
-                         "armature (each sample's boost run and hold flight): expected --samples left out")
-
-
 def monte_carlo(drive: Drive, duty: float, frequency: float, peak_time: float, samples: int,
                 seed: int = 1, chunk: int | None = CHUNK) -> dict:
     """Evaluate ``samples`` random operating points; return percentiles and failure counts.
@@ -81,7 +72,6 @@ def monte_carlo(drive: Drive, duty: float, frequency: float, peak_time: float, s
     ``peak_time`` may be functions of the samples' supply (V, an array) giving each
     sample's value: the hold and peak the firmware runs at that supply (a supply table).
     """
-    refuse_unsampled(drive)
     rng = np.random.default_rng(seed)
     c = drive.coil
     supply = rng.uniform(drive.supply.min, drive.supply.max, samples)
@@ -93,11 +83,18 @@ def monte_carlo(drive: Drive, duty: float, frequency: float, peak_time: float, s
         bf = factors(rng, s_.boost_tolerance, samples, c.tolerance_distribution)
         cf = factors(rng, s_.boost_capacitance_tolerance, samples, c.tolerance_distribution)
 
-    def boosted(res, sl=slice(None)):
-        """``res`` with each sample's pull-in from its own boost (unchanged without one)."""
-        return sampled_pull_in(drive, res, bf[sl], cf[sl]) if s_.boosted else res
     duty_of = duty if callable(duty) else (lambda s: duty)
     peak_of = peak_time if callable(peak_time) else (lambda s: peak_time)
+
+    def boosted(res, sl=slice(None)):
+        """``res`` with each sample's pull-in from its own boost (unchanged without one; a
+        moving armature's run from it into the hold, to the seat within the time-out)."""
+        if not s_.boosted:
+            return res
+        if drive.armature is not None:
+            from .boost_armature import sampled_pull_in as armature_pull_in
+            return armature_pull_in(drive, res, bf[sl], cf[sl], duty_of(res.supply), peak_of(res.supply))
+        return sampled_pull_in(drive, res, bf[sl], cf[sl])
     def coil_temp(s, amb, r, l):
         """With an on/off cycle and a heat capacity, each sample's hottest coil over the
         cycle; else ``None``: evaluate's continuous hold."""

@@ -89,7 +89,9 @@ def on_energies(drive: Drive, supply, r_factor, l_factor, duty, frequency, facto
         rel = loop(drive, supply, temp, r_factor, l_factor, path="release", **factors) \
             if full_bridge(drive) else lp
         # a boosted peak ends at its threshold: the hold heats for the rest of the on-time
-        held = t_on - shortest_peak(drive, lp, t_pk) if drive.supply.boosted else t_hold
+        # (with a moving armature no shorter than the open coil's rise: L(x) >= L_open and
+        # the motion's back-EMF only holds the current back)
+        held = t_on - shortest_peak(drive, lp, t_pk, peak_inductance(drive, lp)) if drive.supply.boosted else t_hold
         peak, hold = peak_heat(drive, lp, t_pk), hold_heat(ss, lp.r_coil) * held
         if isinstance(lp.inductance, EddyCoil):
             # the core's eddy loss heats the coil with the copper, the release's to the end
@@ -114,7 +116,11 @@ def hold_heat(ss, r_coil):
 def peak_heat(drive: Drive, lp, peak_time):
     """J that heats the coil in a peak full on from zero for ``peak_time`` s at the loop
     ``lp``: the copper's and an eddy term's core loss; a boosted peak's from the boost to
-    its threshold (:func:`coildrive.design.boost.peak_heat`)."""
+    its threshold (:func:`coildrive.design.boost.peak_heat`; with a moving armature its
+    run's, :func:`coildrive.design.boost_armature.peak_heat`)."""
+    if drive.supply.boosted and drive.armature is not None:
+        from .boost_armature import peak_heat as armature_peak_heat
+        return armature_peak_heat(drive, lp, peak_time)
     if drive.supply.boosted:
         return boosted_peak_heat(drive, lp, peak_time)
     if isinstance(lp.inductance, EddyCoil):
