@@ -7,8 +7,8 @@ main supply. Physics in :mod:`coildrive.model.boost`.
   above it, so the real trip lies between the threshold and the code's current as a
   low-reading chain sees it -- and the driver compares it once a conversion, and converts
   once a PWM period (docs/firmware.md), so it is seen up to one PWM period of the hold
-  timer late (:func:`~coildrive.design.timer.conversion_period`): the end current, the switch voltage, the
-  time-out, the energy and the peak's heat all include it.
+  timer late (:func:`~coildrive.design.timer.conversion_period`): the end current, the
+  switch voltage, the time-out, the energy and the peak's heat all include it.
 * The slow side (pull-in, force, time-out): the boost at its lowest (``boost`` less
   ``boost_tolerance``, the capacitance less its tolerance) with the envelope's hot coil --
   the capacitor's droop is in the rise. The time-out is the worst corner's time to the
@@ -128,8 +128,8 @@ def peak_in_force(design, supply: float, coil_temp: float, r_factor: float = 1.0
 
 def _seen(drive: Drive, b: model.Boost) -> np.ndarray:
     """When the firmware sees the threshold at the latest (s; ``inf`` where never): the
-    highest trip current (the chain reading low), one conversion (:func:`~coildrive.design.timer.conversion_period`)
-    late. (With an eddy term the sense sees the terminal current, which leads the
+    highest trip current (the chain reading low), one conversion
+    (:func:`~coildrive.design.timer.conversion_period`) late. (With an eddy term the sense sees the terminal current, which leads the
     magnetising current.)"""
     return model.of(b).threshold_time(threshold(drive)[2], b, sensed=True) + conversion_period(drive)
 
