@@ -41,9 +41,12 @@ from coildrive.model.armature import OPENED, params_from_loop
 from coildrive.model.armature_bus_release import release
 from coildrive.model.circuit import loop
 
-#: (R_s ohm, C F, i0 A, v0 V): a long cable on a small capacitor (the bus rises above the
-#: source), a battery lead on a large one from a sagged bus (it stays below).
-CASES = [(1.5, 100e-6, 0.3, 20.0), (0.5, 4.7e-3, 0.3, 15.0)]
+#: (R_s ohm, C F, i0 A, v0 V, spring preload): a long cable on a small capacitor (the bus
+#: rises above the source), a battery lead on a large one from a sagged bus (it stays
+#: below); a stronger spring lets go at 0.24 A, the armature in flight while the current
+#: still flows.
+CASES = [(1.5, 100e-6, 0.3, 20.0, "0.6 N"), (0.5, 4.7e-3, 0.3, 15.0, "0.6 N"),
+         (1.5, 100e-6, 0.6, 22.0, "2 N")]
 V_BUS, TEMP = 24.0, 20.0
 
 
@@ -56,8 +59,8 @@ def _text(tmp_path, sink="true", extra=""):
     return str(path)
 
 
-def _params(tmp_path, rs, c):
-    d = _drive(tmp_path)
+def _params(tmp_path, rs, c, preload="0.6 N"):
+    d = _drive(tmp_path, ARMATURE.replace('spring_preload = "0.6 N"', f'spring_preload = "{preload}"'))
     lp = loop(d, np.array([V_BUS]), np.array([TEMP]), path="release")
     return d, params_from_loop(d.armature, lp, np.array([1.0]), bus=(rs, c))
 
@@ -108,9 +111,9 @@ def reference(p, v_d, rs, c, i0, v0) -> dict:
     return out
 
 
-@pytest.mark.parametrize("rs, c, i0, v0", CASES)
-def test_release_against_solve_ivp_and_the_first_law(tmp_path, rs, c, i0, v0):
-    d, p = _params(tmp_path, rs, c)
+@pytest.mark.parametrize("rs, c, i0, v0, preload", CASES)
+def test_release_against_solve_ivp_and_the_first_law(tmp_path, rs, c, i0, v0, preload):
+    d, p = _params(tmp_path, rs, c, preload)
     v_d = d.freewheel.diode_drop
     r = release(p, np.array([i0]), np.array([v0]), 2 * v_d)
     ref = reference(p, v_d, rs, c, i0, v0)   # scipy solve_ivp, the equations above
@@ -120,11 +123,13 @@ def test_release_against_solve_ivp_and_the_first_law(tmp_path, rs, c, i0, v0):
                       (b.zero_time, ref["zero"]), (b.charge, ref["q"]),
                       (r.highest_bus, ref["high"]), (r.bus_at_zero, ref["bus0"])):
         assert got[0] == pytest.approx(want, rel=1e-5)
-    # (int i^2 dt rides along without its own error control: measured 6e-5 on the ringing bus)
+    # measured at most 3e-6 (int i^2 dt: 6e-5 on the ringing bus, no error control of its own)
     assert b.square[0] == pytest.approx(ref["sq"], rel=2e-4)
-    # first law at the coil's port (module docstring): the motion feeds energy back
+    # first law at the coil's port (module docstring): the motion feeds energy back (1.5 to
+    # 20 uJ here, 5e-4 to 2e-3 of the returned energy: left out, the balance fails);
+    # measured at most 2e-5
     g = values(p)
-    assert ref["w_spring"] > 0
+    assert ref["w_spring"] > 2e-4 * ref["e_bus"]
     returned = 0.5 * g["l_closed"] * i0 ** 2 + ref["w_spring"] - g["r_off"] * b.square[0] - 2 * v_d * b.charge[0]
     assert returned == pytest.approx(ref["e_bus"], rel=1e-4)
 
