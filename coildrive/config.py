@@ -1433,11 +1433,10 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     closed-loop) or current-mode hold (the pull-in run carries the capacitor,
     :mod:`coildrive.model.armature_runs`; the hold is regulated on the stiff bus). Anything
     else is refused in one line rather than designed on a stiff bus. A moving armature on a
-    full bridge: a linear coil without an eddy term on a supply that sinks (``sink = true``),
-    a voltage-mode or current-mode hold; its release is the fast decay into the bus with the
+    full bridge: a linear coil without an eddy term (a supply that sinks or not), a
+    voltage-mode or current-mode hold; its release is the fast decay into the bus with the
     armature letting go, the capacitor a state of the run
-    (:mod:`coildrive.model.armature_bus_release`); not a supply that cannot sink, nor curves
-    or an eddy term."""
+    (:mod:`coildrive.model.armature_bus_release`); not curves or an eddy term."""
     if not supply.droops:
         return
     why = None
@@ -1446,9 +1445,6 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
                                           "returns current into the drooping bus)")
     elif switch.topology == "full_bridge" and hold.mode == "latch":
         key, why = "hold.mode", "a latching coil on a full bridge"
-    elif armature is not None and switch.topology == "full_bridge" and not supply.sink:
-        key, why = "supply.sink", ("a moving armature on a full bridge with a supply that cannot sink "
-                                   "(sink = false)")
     elif armature is not None and switch.topology == "full_bridge" and (armature.open_current
                                                                         or coil.eddy_resistance > 0):
         key, why = ("armature", "a moving armature on a full bridge with flux-linkage curves or an "
@@ -1458,7 +1454,7 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
                          f"{why}: expected source_resistance left out, or one switch (a full bridge: "
-                         "a slow-decay peak-and-hold, with an [armature] a linear coil on a supply that sinks; "
+                         "a slow-decay peak-and-hold, with an [armature] a linear coil without an eddy term; "
                          "a latching coil: one switch, no [armature])")
 
 

@@ -335,11 +335,11 @@ BRIDGE = ("[hold]\n", '[switch]\ntopology = "full_bridge"\n\n[freewheel]\ntype =
 
 
 @pytest.mark.parametrize("edits, key", [
-    # a bridge is designed now (tests/test_bridge_armature_droop.py) where the supply sinks
-    ([BRIDGE, ("source_resistance =", "sink = false\nsource_resistance =")], "supply.sink"),
+    # a bridge is designed now (tests/test_bridge_armature_droop.py), not with an eddy term
+    ([BRIDGE, ("[coil]\n", '[coil]\neddy_resistance = "400 ohm"\n')], "armature"),
 ])
 def test_what_stays_refused(tmp_path, edits, key):
-    """One line naming the key, exit 2: a bridge on a supply that cannot sink."""
+    """One line naming the key, exit 2: a bridge with an eddy-current term."""
     path = Path(_drive_file(tmp_path))
     text = path.read_text()
     for old, new in edits:

@@ -154,8 +154,8 @@ def bridge_release(drive: Drive, grid, res, release: ReleaseResult, peak_time, p
 
 
 def _armature_decays(drive: Drive, res, event: str, i0, peak_time, peak_end) -> list[bus_decay.FastDecay]:
-    """A moving armature's turn-off of ``i0`` A on the drooping bus (a linear coil,
-    ``sink = true``): the armature seated at the turn-off lets go while the current
+    """A moving armature's turn-off of ``i0`` A on the drooping bus (a linear coil; a
+    supply that cannot sink too): the armature seated at the turn-off lets go while the current
     returns into the bus (:func:`coildrive.model.armature_bus_release.release_over`, the
     worst of :data:`BRIDGE_STARTS` starting buses over :func:`bus_range`, its floor the
     pull-in's lowest bus too): the end of the hold's the design's run already
@@ -174,7 +174,7 @@ def _armature_decays(drive: Drive, res, event: str, i0, peak_time, peak_end) -> 
         p = dataclasses.replace(arm.params, r_off=np.ravel(np.broadcast_to(lp.r_off, shape)).astype(float),
                                 v_off=np.ravel(np.broadcast_to(lp.v_off, shape)).astype(float))
         r = release_over(p, np.ravel(i0), np.ravel(lo), np.ravel(hi), 2.0 * np.ravel(np.broadcast_to(
-            np.asarray(lp.diode(drive), float), shape)), BRIDGE_STARTS)
+            np.asarray(lp.diode(drive), float), shape)), BRIDGE_STARTS, sink=drive.supply.sink)
     b = r.run
     return [bus_decay.FastDecay(*(np.reshape(a, shape) for a in (
         b.open_time, b.zero_time, r.highest_bus, r.highest_bus, r.highest_bus_time, r.bus_at_zero, b.charge)))]

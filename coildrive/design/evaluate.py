@@ -216,8 +216,8 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
 
 
 def _release_on_bus(drive: Drive, flat_rel: Loop, l_factor, shape, pin, i_max):
-    """A moving armature's release on a full bridge on the drooping bus (``sink = true``,
-    a linear coil): :func:`coildrive.model.armature_bus_release.release_over` from
+    """A moving armature's release on a full bridge on the drooping bus (a linear coil;
+    ``supply.sink`` either way): :func:`coildrive.model.armature_bus_release.release_over` from
     :data:`coildrive.model.bus_decay.STARTS` starting buses between the lowest
     the bus can be at the turn-off and the source ``V_s``: the pull-in's lowest bus or,
     once the coil draws no more than the larger of the end of the peak and the hold's top
@@ -237,7 +237,7 @@ def _release_on_bus(drive: Drive, flat_rel: Loop, l_factor, shape, pin, i_max):
     top = np.maximum(end, np.where(np.isfinite(i_max), i_max, 0.0))
     low = np.where(np.isfinite(pin.lowest_bus), pin.lowest_bus, v_s)
     lowest = np.maximum(np.minimum(low, bus_floor(v_s, s.source_resistance, top)), -v_d2)
-    return release_over(p_bus, np.where(np.isfinite(i_max), i_max, 0.0), lowest, v_s, v_d2, STARTS)
+    return release_over(p_bus, np.where(np.isfinite(i_max), i_max, 0.0), lowest, v_s, v_d2, STARTS, sink=s.sink)
 
 
 def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,

@@ -8,6 +8,10 @@ armature lets go. The capacitor's voltage ``u`` is a sixth state of the armature
 
     dlambda/dt = -(u + 2 V_d) - R_off i          i = lambda (1 + beta x) / L_c
     C du/dt    = (V_s - u)/R_s + i               (while i > 0; the diodes block at 0)
+
+A supply that cannot sink (``supply.sink = false``: an ideal one-way diode in its feed)
+feeds the bus only while it is below ``V_s``: ``max(V_s - u, 0)/R_s``; above it the
+returned current charges ``C`` alone, and the bus stays where the current stops.
     m dv/dt    = F_spring(x) + F_load - beta lambda^2 / (2 L_c) - d v,   dx/dt = v
 
 The armature rests on the seat (the flux held, :func:`~coildrive.model.armature_flight.fly`
@@ -49,11 +53,12 @@ class BusRelease:
 
 
 def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
-            max_rounds: int = 4 * MAX_BOUNCES) -> BusRelease:
+            max_rounds: int = 4 * MAX_BOUNCES, sink: bool = True) -> BusRelease:
     """Turn off at t = 0 with the armature seated, ``i_off`` A flowing and the bus at
     ``v0`` V (at most the source's ``p.v_on``); ``v_diodes`` V the two body diodes'
     drop ``2 V_d``. ``p``: the release loop's points on the drooping bus (``p.droops``,
-    a linear coil without an eddy term; ``r_off`` the coil's path, ``v_on`` the source)."""
+    a linear coil without an eddy term; ``r_off`` the coil's path, ``v_on`` the source);
+    ``sink``: False, a supply that cannot sink (module docstring)."""
     if p.curves is not None or p.eddy is not None or not p.droops:
         raise ValueError("the bridge's release on the drooping bus: a linear coil, no eddy term, R_s > 0")
     n = len(p)
@@ -80,7 +85,7 @@ def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
     seated = live & (i_off > p.stay_current)
     if seated.any():
         fl = fly_mixed(p, t, y, bound, seated, off, live, stiff, rtol, held=ones, flux_down=lam_stay,
-                       returns=v_d2, high=high)
+                       returns=v_d2, high=high, sink=sink)
         steps += fl.steps
         stuck = seated & (fl.end != START)   # (never within the bound: it stays seated)
         status = np.where(stuck, NOT_OPEN, status)
@@ -96,7 +101,7 @@ def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
     for _ in range(max_rounds):
         if not active.any():
             break
-        fl = fly_mixed(p, t, y, bound, active, off, live, stiff, rtol, returns=v_d2, high=high)
+        fl = fly_mixed(p, t, y, bound, active, off, live, stiff, rtol, returns=v_d2, high=high, sink=sink)
         steps += fl.steps
         t = np.where(active, fl.t, t)
         y = np.where(active, fl.y, y)
@@ -113,7 +118,7 @@ def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
     tail = (status == OPENED) & live
     if tail.any():
         fl = fly_mixed(p, t, y, np.maximum(bound, t) + bound, tail, off, live, stiff, rtol, held=ones,
-                       returns=v_d2, high=high)
+                       returns=v_d2, high=high, sink=sink)
         steps += np.where(tail, fl.steps, 0)
         done = tail & (fl.end == ZERO)
         zero_time = np.where(done, fl.t, zero_time)
@@ -128,7 +133,7 @@ def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
 
 
 def release_over(p: ArmatureParams, i_off, lowest, highest, v_diodes, starts: int,
-                 rtol: float = 1e-7) -> BusRelease:
+                 rtol: float = 1e-7, sink: bool = True) -> BusRelease:
     """:func:`release` from ``starts`` starting buses evenly over ``[lowest, highest]`` V
     per point (the range the bus can be in at the turn-off), all in one batch; per point
     each figure the worst over the starts: the latest unlatch, open stop and zero current,
@@ -140,7 +145,7 @@ def release_over(p: ArmatureParams, i_off, lowest, highest, v_diodes, starts: in
     v0 = np.concatenate([lo + (hi - lo) * k / max(starts - 1, 1) for k in range(starts)])
     idx = np.tile(np.arange(n), starts)
     r = release(p.take(idx), np.tile(np.broadcast_to(np.asarray(i_off, float), (n,)), starts), v0,
-                np.tile(np.broadcast_to(np.asarray(v_diodes, float), (n,)), starts), rtol)
+                np.tile(np.broadcast_to(np.asarray(v_diodes, float), (n,)), starts), rtol, sink=sink)
     b = r.run
 
     def worst(a):

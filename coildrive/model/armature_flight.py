@@ -69,7 +69,8 @@ class _Rhs:
     ``2 V_d`` V per point) pushes the current back into the bus instead, switched off::
 
         dlambda/dt = -(u + 2 V_d) - R_off i
-        C du/dt    = (V_s - u)/R_s + i
+        C du/dt    = (V_s - u)/R_s + i           (a supply that cannot sink, ``sink`` False:
+                                                 max(V_s - u, 0)/R_s, its feed one-way)
 
     With an eddy term (``p.eddy``, the resistance ``R_e`` across the magnetising branch)
     ``i`` is the branch's current and the branch sees the loop's Thevenin pair: switched on
@@ -78,7 +79,7 @@ class _Rhs:
     """
 
     def __init__(self, p: ArmatureParams, on: np.ndarray, live: np.ndarray, held: np.ndarray | None = None,
-                 returns: np.ndarray | None = None):
+                 returns: np.ndarray | None = None, sink: bool = True):
         self.curves = p.curves
         #: 1 where switched off into the drooping bus (a bridge's fast decay), else 0
         self.back = None
@@ -87,6 +88,8 @@ class _Rhs:
                 raise ValueError("returns: a linear or curved coil without an eddy term, on a drooping bus")
             self.back = (~on).astype(float)
             self.v_d2 = np.broadcast_to(np.asarray(returns, float), on.shape)
+        #: False: the source feeds the bus only while it is below V_s (an ideal feed diode)
+        self.sink = sink
         #: 0 where the armature is held at its stop (``x``, ``v`` frozen: a resting stretch), else 1
         self.free = 1.0 if held is None else 1.0 - held.astype(float)
         self.inv_m = 1.0 / p.mass
@@ -162,7 +165,7 @@ class _Rhs:
             jac[:, 0, 5] = self.live * (self.on * self.k_on - (0.0 if self.back is None else self.back))
             jac[:, 5, 0] = -feed * self.inv_c * di_dl
             jac[:, 5, 1] = -feed * self.inv_c * di_dx
-            jac[:, 5, 5] = -self.g_s
+            jac[:, 5, 5] = -self.g_s if self.sink else -self.g_s * (y[5] < self.v_s)
             if self.tu is not None:   # the terminal current's bus share
                 i = i + self.tu * y[5]
                 jac[:, 3, 5] = self.tu
@@ -227,7 +230,8 @@ class _Rhs:
         i = self.terminal(i, u)
         if self.droop:
             feed = self.on if self.back is None else self.on - self.back * self.live
-            out[5] = self.g_s * (self.v_s - u) - feed * self.inv_c * i
+            fed = self.v_s - u if self.sink else np.maximum(self.v_s - u, 0.0)
+            out[5] = self.g_s * fed - feed * self.inv_c * i
         out[3] = i
         out[4] = i * i
         return out
@@ -335,7 +339,7 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
         low_until: np.ndarray | None = None, held: np.ndarray | None = None,
         flux_to: np.ndarray | None = None, current_to: np.ndarray | None = None,
         flux_down: np.ndarray | None = None, returns: np.ndarray | None = None,
-        high: np.ndarray | None = None) -> Flight:
+        high: np.ndarray | None = None, sink: bool = True) -> Flight:
     """Integrate the free armature of every ``active`` point from ``t`` until a stop, the
     current reaching zero (switch off), or ``t_end``.
 
@@ -369,7 +373,8 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
     the flux linkage falls to it instead (the seated coil's decay to the stay current)
     returns : V per point, a full bridge's two body diodes ``2 V_d``: switched off, the
     current returns into the drooping bus (:class:`_Rhs`); high : then the running
-    highest capacitor voltage and its time (2 x N: V, s), as ``low``
+    highest capacitor voltage and its time (2 x N: V, s), as ``low``; sink : False, a
+    supply that cannot sink (its feed one-way: ``max(V_s - u, 0)/R_s``)
 
     A batch of one point goes through :func:`fly_point` (Python floats: numpy's per-call
     overhead on 1-element arrays would dominate; same algorithm and results; the coil's
@@ -389,7 +394,7 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
     active = active.copy() & (t < t_end)
     end = np.where(active, RUNNING, BOUND)
     steps = np.zeros(n, int)
-    rhs = _Rhs(p, on, live, held, returns)
+    rhs = _Rhs(p, on, live, held, returns, sink)
     free = np.ones(n, bool) if held is None else ~held
     target = np.full(n, np.inf) if flux_to is None else np.broadcast_to(flux_to, (n,))
     floor = None if flux_down is None else np.broadcast_to(flux_down, (n,))
