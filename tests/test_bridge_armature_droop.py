@@ -78,7 +78,8 @@ def reference(p, v_d, rs, c, i0, v0, sink=True) -> dict:
         i = cur(lam, x) if lam > 0 else 0.0
         acc = 0.0 if held else (opening(x) - pull(lam) - g["damping"] * v) / g["mass"]
         return [-(u + 2 * v_d) - r * i if lam > 0 else 0.0, 0.0 if held else v, acc,
-                ((vs - u if sink else max(vs - u, 0.0)) / rs + i) / c, i, i * i, u * i, 0.0 if held else pull(lam) * v]
+                ((vs - u if sink else max(vs - u, 0.0)) / rs + i) / c, i, i * i, u * i,
+                0.0 if held else pull(lam) * v]
 
     tol = dict(method="Radau", rtol=1e-11, atol=1e-13)
 
@@ -130,7 +131,8 @@ def test_release_against_solve_ivp_and_the_first_law(tmp_path, rs, c, i0, v0, pr
     # measured at most 2e-5
     g = values(p)
     assert ref["w_spring"] > 2e-4 * ref["e_bus"]
-    returned = 0.5 * g["l_closed"] * i0 ** 2 + ref["w_spring"] - g["r_off"] * b.square[0] - 2 * v_d * b.charge[0]
+    returned = (0.5 * g["l_closed"] * i0 ** 2 + ref["w_spring"] - g["r_off"] * b.square[0]
+                - 2 * v_d * b.charge[0])
     assert returned == pytest.approx(ref["e_bus"], rel=1e-4)
 
 

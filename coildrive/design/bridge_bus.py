@@ -176,8 +176,9 @@ def _armature_decays(drive: Drive, res, event: str, i0, peak_time, peak_end) -> 
         r = release_over(p, np.ravel(i0), np.ravel(lo), np.ravel(hi), 2.0 * np.ravel(np.broadcast_to(
             np.asarray(lp.diode(drive), float), shape)), BRIDGE_STARTS, sink=drive.supply.sink)
     b = r.run
-    return [bus_decay.FastDecay(*(np.reshape(a, shape) for a in (
-        b.open_time, b.zero_time, r.highest_bus, r.highest_bus, r.highest_bus_time, r.bus_at_zero, b.charge)))]
+    figures = (b.open_time, b.zero_time, r.highest_bus, r.highest_bus, r.highest_bus_time, r.bus_at_zero,
+               b.charge)
+    return [bus_decay.FastDecay(*(np.reshape(a, shape) for a in figures))]
 
 
 def bridge_bus_checks(drive: Drive, sup: SupplyResult | None) -> list[Check]:

@@ -237,7 +237,8 @@ def _release_on_bus(drive: Drive, flat_rel: Loop, l_factor, shape, pin, i_max):
     top = np.maximum(end, np.where(np.isfinite(i_max), i_max, 0.0))
     low = np.where(np.isfinite(pin.lowest_bus), pin.lowest_bus, v_s)
     lowest = np.maximum(np.minimum(low, bus_floor(v_s, s.source_resistance, top)), -v_d2)
-    return release_over(p_bus, np.where(np.isfinite(i_max), i_max, 0.0), lowest, v_s, v_d2, STARTS, sink=s.sink)
+    return release_over(p_bus, np.where(np.isfinite(i_max), i_max, 0.0), lowest, v_s, v_d2, STARTS,
+                        sink=s.sink)
 
 
 def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
