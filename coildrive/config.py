@@ -1432,7 +1432,11 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     eddy term, curves, or both), one switch, a voltage-mode (fixed, supply-table or
     closed-loop) or current-mode hold (the pull-in run carries the capacitor,
     :mod:`coildrive.model.armature_runs`; the hold is regulated on the stiff bus). Anything
-    else is refused in one line rather than designed on a stiff bus."""
+    else is refused in one line rather than designed on a stiff bus. A moving armature on a
+    full bridge: a linear coil without an eddy term (a supply that sinks or not), a
+    voltage-mode or current-mode hold; its release is the fast decay into the bus with the
+    armature letting go, the capacitor a state of the run
+    (:mod:`coildrive.model.armature_bus_release`); not curves or an eddy term."""
     if not supply.droops:
         return
     why = None
@@ -1441,14 +1445,17 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
                                           "returns current into the drooping bus)")
     elif switch.topology == "full_bridge" and hold.mode == "latch":
         key, why = "hold.mode", "a latching coil on a full bridge"
-    elif armature is not None and switch.topology == "full_bridge":
-        key, why = "armature", "a moving armature on a full bridge"
+    elif armature is not None and switch.topology == "full_bridge" and (armature.open_current
+                                                                        or coil.eddy_resistance > 0):
+        key, why = ("armature", "a moving armature on a full bridge with flux-linkage curves or an "
+                    "eddy-current term (the release into the bus: a linear coil only)")
     elif armature is not None and hold.mode == "latch":
         key, why = "hold.mode", "a latching coil with a moving armature"
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
                          f"{why}: expected source_resistance left out, or one switch (a full bridge: "
-                         "a slow-decay peak-and-hold, no [armature]; a latching coil: one switch, no [armature])")
+                         "a slow-decay peak-and-hold, with an [armature] a linear coil without an eddy term; "
+                         "a latching coil: one switch, no [armature])")
 
 
 def _read_boost(s: "_Section") -> tuple:

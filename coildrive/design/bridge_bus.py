@@ -26,8 +26,8 @@ from .supply import bus_at, model_of
 from .turnoff import event_currents, release_loop
 
 #: Starting buses tried for a bridge's fast decay, evenly over the range the bus can be in
-#: at a turn-off (the state is affine in the starting bus at every moment).
-BRIDGE_STARTS = 5
+#: at a turn-off (a still coil's state is affine in the starting bus at every moment).
+BRIDGE_STARTS = bus_decay.STARTS
 
 
 def bus_range(drive: Drive, res, peak_time, peak_end) -> tuple[np.ndarray, np.ndarray]:
@@ -115,7 +115,8 @@ def bridge_release(drive: Drive, grid, res, release: ReleaseResult, peak_time, p
     bus_top, ev_top, k_top = -np.inf, "", 0
     t_drop = t_zero = None
     for event, i0 in event_currents(res, peak_end, trip_current).items():
-        runs = decays(drive, res, i0, peak_time, peak_end)
+        runs = (decays(drive, res, i0, peak_time, peak_end) if res.armature is None
+                else _armature_decays(drive, res, event, i0, peak_time, peak_end))
         bus = np.max([d.bus_max for d in runs], axis=0)
         diodes = 2.0 * v_d * np.max([d.charge for d in runs], axis=0)   # the two body diodes
         v_sw = bus + v_d + (drive.board.sense.resistance * i0 if common else 0.0)
@@ -132,7 +133,11 @@ def bridge_release(drive: Drive, grid, res, release: ReleaseResult, peak_time, p
         if float(np.max(bus)) > bus_top:
             k_top = worst(bus)
             bus_top, ev_top = float(bus[k_top]), event
-        if event == "end of hold":
+        if event == "end of hold" and res.armature is not None:
+            # the release time is the armature's on the open stop (already the run's)
+            t_drop = np.zeros_like(runs[0].drop_time)
+            t_zero = runs[0].zero_time
+        elif event == "end of hold":
             t_drop = np.max([d.drop_time for d in runs], axis=0)
             t_zero = np.max([d.zero_time for d in runs], axis=0)
     top = max(offs, key=lambda o: o["energy_j"])
@@ -148,6 +153,32 @@ def bridge_release(drive: Drive, grid, res, release: ReleaseResult, peak_time, p
         highest_bus_v=bus_top, highest_bus_event=ev_top, highest_bus_corner=grid.label(k_top))
 
 
+def _armature_decays(drive: Drive, res, event: str, i0, peak_time, peak_end) -> list[bus_decay.FastDecay]:
+    """A moving armature's turn-off of ``i0`` A on the drooping bus (a linear coil; a
+    supply that cannot sink too): the armature seated at the turn-off lets go while the current
+    returns into the bus (:func:`coildrive.model.armature_bus_release.release_over`, the
+    worst of :data:`BRIDGE_STARTS` starting buses over :func:`bus_range`, its floor the
+    pull-in's lowest bus too): the end of the hold's the design's run already
+    (``res.armature.bus_release``). One :class:`~coildrive.model.bus_decay.FastDecay`
+    of those worst figures (``drop_time``: the time to the open stop)."""
+    from ..model.armature_bus_release import release_over
+
+    arm = res.armature
+    lp = release_loop(res)
+    shape = np.shape(lp.v_on)
+    if event == "end of hold":
+        r = arm.bus_release
+    else:
+        lo, hi = bus_range(drive, res, peak_time, peak_end)
+        lo = np.minimum(lo, np.reshape(arm.pull_in.lowest_bus, shape))
+        p = dataclasses.replace(arm.params, r_off=np.ravel(np.broadcast_to(lp.r_off, shape)).astype(float),
+                                v_off=np.ravel(np.broadcast_to(lp.v_off, shape)).astype(float))
+        r = release_over(p, np.ravel(i0), np.ravel(lo), np.ravel(hi), 2.0 * np.ravel(np.broadcast_to(
+            np.asarray(lp.diode(drive), float), shape)), BRIDGE_STARTS, sink=drive.supply.sink)
+    b = r.run
+    figures = (b.open_time, b.zero_time, r.highest_bus, r.highest_bus, r.highest_bus_time, r.bus_at_zero,
+               b.charge)
+    return [bus_decay.FastDecay(*(np.reshape(a, shape) for a in figures))]
 
 
 def bridge_bus_checks(drive: Drive, sup: SupplyResult | None) -> list[Check]:

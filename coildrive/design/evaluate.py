@@ -18,7 +18,7 @@ import numpy as np
 from ..config import Drive
 from ..model import eddy
 from ..model.eddy import EddyCoil
-from ..model.circuit import Loop, freewheel_element_energy, loop, two_paths
+from ..model.circuit import Loop, freewheel_element_energy, full_bridge, loop, two_paths
 from ..model.pwm import PwmSteadyState, duty_for_mean, coil_heat, pwm_steady_state
 from ..model.rl import decay_current, decay_integrals, decay_time
 from ..model.thermal import settle_temperature
@@ -135,6 +135,10 @@ class ArmatureFigures:
     #: A boosted peak's runs (:class:`~coildrive.design.boost_armature.BoostRuns`; their
     #: ``slow`` is ``pull_in``), else ``None``.
     boost: object = None
+    #: A full bridge on the drooping bus: the release's worst over the starting buses
+    #: (:func:`coildrive.model.armature_bus_release.release_over`; its ``run`` is
+    #: ``release``: the highest bus, the bus at zero current), else ``None``.
+    bus_release: object = None
 
 
 def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak_time,
@@ -191,6 +195,13 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
             rel = reuse.release
     if pin is None:
         pin = pull_in(p_pull, peak_time=want)
+    on_bus = None
+    if s.droops and full_bridge(drive):
+        # the fast decay returns the current into the drooping bus while the armature lets
+        # go: the capacitor a state of the release run, from the range of starting buses
+        on_bus = _release_on_bus(drive, flat_rel if lp_rel is not None and lp_rel is not lp else flat,
+                                 l_factor, shape, pin, np.ravel(ss.i_max))
+        rel = on_bus.run
     if rel is None:
         rel = (late_release(p, p_rel, np.ravel(ss.i_max), lag) if lag > 0 else
                release(p_rel, np.ravel(ss.i_max)))
@@ -201,7 +212,33 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
     return ArmatureFigures(params=p_pull, pull_in=pin, release=rel, start_current=p.start_current,
                            stay_current=p.stay_current, stroke_current=np.atleast_1d(through),
                            stroke_gap=np.atleast_1d(gap), hold_current=held, hold_lift=lift,
-                           release_from=np.ravel(ss.i_max).copy(), boost=boosted)
+                           release_from=np.ravel(ss.i_max).copy(), boost=boosted, bus_release=on_bus)
+
+
+def _release_on_bus(drive: Drive, flat_rel: Loop, l_factor, shape, pin, i_max):
+    """A moving armature's release on a full bridge on the drooping bus (a linear coil;
+    ``supply.sink`` either way): :func:`coildrive.model.armature_bus_release.release_over` from
+    :data:`coildrive.model.bus_decay.STARTS` starting buses between the lowest
+    the bus can be at the turn-off and the source ``V_s``: the pull-in's lowest bus or,
+    once the coil draws no more than the larger of the end of the peak and the hold's top
+    ``i_max`` A, :func:`~coildrive.model.supply.bus_floor` under it (as
+    :func:`coildrive.design.bridge_bus.bus_range`), never below ``-2 V_d``."""
+    from ..model.armature import params_from_loop
+    from ..model.armature_bus_release import release_over
+    from ..model.bus_decay import STARTS
+    from ..model.supply import bus_floor
+
+    s = drive.supply
+    p_bus = params_from_loop(drive.armature, flat_rel, np.ravel(np.broadcast_to(l_factor, shape)),
+                             bus=(s.source_resistance, s.capacitance))
+    v_s = p_bus.v_on
+    v_d2 = flat_rel.v_off - flat_rel.v_on     # the two body diodes (V_s + 2 V_d into the bus)
+    end = np.where(np.isfinite(pin.peak_end_current), pin.peak_end_current, 0.0)
+    top = np.maximum(end, np.where(np.isfinite(i_max), i_max, 0.0))
+    low = np.where(np.isfinite(pin.lowest_bus), pin.lowest_bus, v_s)
+    lowest = np.maximum(np.minimum(low, bus_floor(v_s, s.source_resistance, top)), -v_d2)
+    return release_over(p_bus, np.where(np.isfinite(i_max), i_max, 0.0), lowest, v_s, v_d2, STARTS,
+                        sink=s.sink)
 
 
 def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,

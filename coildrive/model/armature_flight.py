@@ -65,14 +65,31 @@ class _Rhs:
         dlambda/dt = u - R_on i                      switch on (the bus feeds the coil)
         C du/dt    = (V_s - u)/R_s - i [switch on]   (the freewheel path draws nothing)
 
+    A full bridge's fast decay on the drooping bus (``returns``: the two body diodes' drop
+    ``2 V_d`` V per point) pushes the current back into the bus instead, switched off::
+
+        dlambda/dt = -(u + 2 V_d) - R_off i
+        C du/dt    = (V_s - u)/R_s + i           (a supply that cannot sink, ``sink`` False:
+                                                 max(V_s - u, 0)/R_s, its feed one-way)
+
     With an eddy term (``p.eddy``, the resistance ``R_e`` across the magnetising branch)
     ``i`` is the branch's current and the branch sees the loop's Thevenin pair: switched on
     ``dlambda/dt = k (u - R_on i)`` with ``k = R_e/(R_on + R_e)``, and the bus feeds the
     terminal current ``k (i + u/R_e)`` (what ``q``, ``sq`` integrate too).
     """
 
-    def __init__(self, p: ArmatureParams, on: np.ndarray, live: np.ndarray, held: np.ndarray | None = None):
+    def __init__(self, p: ArmatureParams, on: np.ndarray, live: np.ndarray, held: np.ndarray | None = None,
+                 returns: np.ndarray | None = None, sink: bool = True):
         self.curves = p.curves
+        #: 1 where switched off into the drooping bus (a bridge's fast decay), else 0
+        self.back = None
+        if returns is not None:
+            if p.eddy is not None or not p.droops:
+                raise ValueError("returns: a linear or curved coil without an eddy term, on a drooping bus")
+            self.back = (~on).astype(float)
+            self.v_d2 = np.broadcast_to(np.asarray(returns, float), on.shape)
+        #: False: the source feeds the bus only while it is below V_s (an ideal feed diode)
+        self.sink = sink
         #: 0 where the armature is held at its stop (``x``, ``v`` frozen: a resting stretch), else 1
         self.free = 1.0 if held is None else 1.0 - held.astype(float)
         self.inv_m = 1.0 / p.mass
@@ -144,10 +161,11 @@ class _Rhs:
         jac[:, 4, 0] = 2.0 * i * di_dl
         jac[:, 4, 1] = 2.0 * i * di_dx
         if self.droop:
-            jac[:, 0, 5] = self.live * self.on * self.k_on
-            jac[:, 5, 0] = -self.on * self.inv_c * di_dl
-            jac[:, 5, 1] = -self.on * self.inv_c * di_dx
-            jac[:, 5, 5] = -self.g_s
+            feed = self.on if self.back is None else self.on - self.back * self.live
+            jac[:, 0, 5] = self.live * (self.on * self.k_on - (0.0 if self.back is None else self.back))
+            jac[:, 5, 0] = -feed * self.inv_c * di_dl
+            jac[:, 5, 1] = -feed * self.inv_c * di_dx
+            jac[:, 5, 5] = -self.g_s if self.sink else -self.g_s * (y[5] < self.v_s)
             if self.tu is not None:   # the terminal current's bus share
                 i = i + self.tu * y[5]
                 jac[:, 3, 5] = self.tu
@@ -202,6 +220,8 @@ class _Rhs:
         u = y[5] if self.droop else None
         if self.droop:
             drive_v = np.where(self.on > 0, self.k_on * u, self.drive_v)
+            if self.back is not None:
+                drive_v = np.where(self.back > 0, -(u + self.v_d2), drive_v)
             out[0] = self.live * (drive_v - self.drive_r * i)
         else:
             out[0] = self.live * (self.drive_v - self.drive_r * i)
@@ -209,7 +229,9 @@ class _Rhs:
         out[2] = self.free * (self.f0 - self.km * x - pull - self.dm * v)
         i = self.terminal(i, u)
         if self.droop:
-            out[5] = self.g_s * (self.v_s - u) - self.on * self.inv_c * i
+            feed = self.on if self.back is None else self.on - self.back * self.live
+            fed = self.v_s - u if self.sink else np.maximum(self.v_s - u, 0.0)
+            out[5] = self.g_s * fed - feed * self.inv_c * i
         out[3] = i
         out[4] = i * i
         return out
@@ -315,7 +337,9 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
         track: np.ndarray | None = None, peak: np.ndarray | None = None,
         max_steps: int = MAX_STEPS, stiff: bool = False, low: np.ndarray | None = None,
         low_until: np.ndarray | None = None, held: np.ndarray | None = None,
-        flux_to: np.ndarray | None = None, current_to: np.ndarray | None = None) -> Flight:
+        flux_to: np.ndarray | None = None, current_to: np.ndarray | None = None,
+        flux_down: np.ndarray | None = None, returns: np.ndarray | None = None,
+        high: np.ndarray | None = None, sink: bool = True) -> Flight:
     """Integrate the free armature of every ``active`` point from ``t`` until a stop, the
     current reaching zero (switch off), or ``t_end``.
 
@@ -345,6 +369,12 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
     current_to : A per point (``inf``: none): a free flight ends (code TRIP) where the
     coil's current (with an eddy term the terminal current) rises to it -- a boosted peak's
     threshold (a linear coil)
+    flux_down : Wb per point: where ``held``, the resting stretch ends (code START) where
+    the flux linkage falls to it instead (the seated coil's decay to the stay current)
+    returns : V per point, a full bridge's two body diodes ``2 V_d``: switched off, the
+    current returns into the drooping bus (:class:`_Rhs`); high : then the running
+    highest capacitor voltage and its time (2 x N: V, s), as ``low``; sink : False, a
+    supply that cannot sink (its feed one-way: ``max(V_s - u, 0)/R_s``)
 
     A batch of one point goes through :func:`fly_point` (Python floats: numpy's per-call
     overhead on 1-element arrays would dominate; same algorithm and results; the coil's
@@ -364,9 +394,10 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
     active = active.copy() & (t < t_end)
     end = np.where(active, RUNNING, BOUND)
     steps = np.zeros(n, int)
-    rhs = _Rhs(p, on, live, held)
+    rhs = _Rhs(p, on, live, held, returns, sink)
     free = np.ones(n, bool) if held is None else ~held
     target = np.full(n, np.inf) if flux_to is None else np.broadcast_to(flux_to, (n,))
+    floor = None if flux_down is None else np.broadcast_to(flux_down, (n,))
     trip_at = None if current_to is None else np.broadcast_to(np.asarray(current_to, float), (n,))
     rows = [0, 1, 2]                 # the rows under error control
     scale = rtol * p.reference_scales()
@@ -402,6 +433,8 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
         seat = ok & free & (y_new[1] < 0.0)
         opn = ok & free & (y_new[1] > p.stroke)
         start = ok & ~free & (y_new[0] >= target)
+        if floor is not None:
+            start = ok & ~free & (y_new[0] <= floor)
         trip = np.zeros(n, bool)
         if trip_at is not None:   # (with an eddy term the terminal current: what the sense sees)
             rate = rhs.current_rate if rhs.t1 is None else rhs.terminal_rate
@@ -424,7 +457,8 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
                     (opn, p.stroke - y[1], p.stroke - y_new[1], -k1[1], -k7[1], OPEN),
                     ((zero, y[0], y_new[0], k1[0], k7[0], ZERO) if rhs.t1 is None else
                      (zero, g_old, g_new, dg_old, dg_new, ZERO)),
-                    (start, target - y[0], target - y_new[0], -k1[0], -k7[0], START),
+                    ((start, target - y[0], target - y_new[0], -k1[0], -k7[0], START) if floor is None else
+                     (start, y[0] - floor, y_new[0] - floor, k1[0], k7[0], START)),
                     (trip, *((trip_at - c_old, trip_at - c_new, -dc_old, -dc_new) if trip_at is not None
                              else (y[0],) * 4), TRIP)):
                 if mask.any():
@@ -455,6 +489,10 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
                 peak[1] = np.where(up, t_new, peak[1])
         if low is not None:
             _track_low(low, low_until, ok, t, y, y_full, y_new, k1, k7, h, theta)
+        if high is not None:   # the highest is the lowest of -u (only row 5 is read)
+            sunk = np.stack([-high[0], high[1]])
+            _track_low(sunk, np.full(n, np.inf), ok, t, -y, -y_full, -y_new, -k1, -k7, h, theta)
+            high[0], high[1] = -sunk[0], sunk[1]
         # accept
         t = np.where(ok, t_new, t)
         y = np.where(ok, y_new, y)

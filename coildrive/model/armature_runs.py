@@ -498,6 +498,33 @@ class ReleaseBatch:
     fast_current: np.ndarray | None = None
 
 
+def open_stop(end, active, y, t, lam_start, open_time, status):
+    """After a release flight: a point at the open stop stops there (``y``'s speed to 0, in
+    place) and stays open where its flux is at most ``lam_start`` Wb (it would start again
+    above it). Returns ``(stays, open_time s, status)``."""
+    opn = active & (end == OPEN)
+    y[2] = np.where(opn, 0.0, y[2])
+    stays = opn & (y[0] <= lam_start)
+    return stays, np.where(stays, t, open_time), np.where(stays, OPENED, status)
+
+
+def bounce_or_stall(p: ArmatureParams, end, active, y, status, stall_gap):
+    """After a release flight (``end``: its codes): a point back on the seat bounces off it
+    (``y``'s speed, in place, with the restitution), one at the bound fails (NOT_OPEN at its
+    gap). Returns ``(active, status, stall_gap)``."""
+    seat = active & (end == SEAT)
+    y[2] = np.where(seat, p.restitution * np.abs(y[2]), y[2])
+    ended = active & (end == BOUND)
+    return active & ~ended, np.where(ended, NOT_OPEN, status), np.where(ended, y[1], stall_gap)
+
+
+def settle_status(status, stall_gap, y):
+    """A release's final ``(status, stall_gap)``: a point still undecided (status < 0) did
+    not open, at its last gap ``y[1]``."""
+    status = np.where(status < 0, NOT_OPEN, status)
+    return status, np.where((status == NOT_OPEN) & np.isnan(stall_gap), y[1], stall_gap)
+
+
 def release(p: ArmatureParams, i_off, rtol: float = 1e-7, max_rounds: int = 4 * MAX_BOUNCES) -> ReleaseBatch:
     """Turn off at t = 0 with the armature seated and ``i_off`` A flowing; follow the
     freewheel decay and the armature until it rests on the open stop."""
@@ -539,11 +566,7 @@ def release(p: ArmatureParams, i_off, rtol: float = 1e-7, max_rounds: int = 4 * 
         live = live & ~zero
         if p.eddy is None:   # (with an eddy term the flux outlasts the terminal current)
             y[0] = np.where(zero, 0.0, y[0])
-        opn = active & (fl.end == OPEN)
-        y[2] = np.where(opn, 0.0, y[2])
-        stays = opn & (y[0] <= lam_start)
-        open_time = np.where(stays, t, open_time)
-        status = np.where(stays, OPENED, status)
+        stays, open_time, status = open_stop(fl.end, active, y, t, lam_start, open_time, status)
         # current still flowing at the open stop: the rest of the decay is closed form
         tail = stays & live
         if tail.any():
@@ -554,14 +577,8 @@ def release(p: ArmatureParams, i_off, rtol: float = 1e-7, max_rounds: int = 4 * 
             y[3] = np.where(tail, y[3] + dq, y[3])
             y[4] = np.where(tail, y[4] + ds, y[4])
         active = active & ~stays
-        seat = active & (fl.end == SEAT)
-        y[2] = np.where(seat, p.restitution * np.abs(y[2]), y[2])
-        ended = active & (fl.end == BOUND)
-        status = np.where(ended, NOT_OPEN, status)
-        stall_gap = np.where(ended, y[1], stall_gap)
-        active = active & ~ended
-    status = np.where(status < 0, NOT_OPEN, status)
-    stall_gap = np.where((status == NOT_OPEN) & np.isnan(stall_gap), y[1], stall_gap)
+        active, status, stall_gap = bounce_or_stall(p, fl.end, active, y, status, stall_gap)
+    status, stall_gap = settle_status(status, stall_gap, y)
     return ReleaseBatch(status=status, unlatch_time=t_un, open_time=open_time,
                         zero_time=np.where(np.isnan(zero_time), np.inf, zero_time),
                         charge=y[3], square=y[4], stall_gap=stall_gap, bound=bound, steps=steps)

@@ -63,6 +63,11 @@ from . import linear2, rlc, supply
 #: Bisection steps for the drop-out and zero times: the bracket shrinks 2^-60.
 BISECTION_STEPS = 60
 
+#: Starting buses a full bridge's fast decay is tried from, evenly over the range the bus
+#: can be in at a turn-off (:mod:`coildrive.design.bridge_bus`; with a moving armature
+#: :func:`coildrive.model.armature_bus_release.release_over`).
+STARTS = 5
+
 
 @dataclass(frozen=True)
 class FastDecay:

@@ -1,0 +1,166 @@
+"""The release of a moving armature on a full bridge on the drooping bus.
+
+At the turn-off all four switches open and the coil's current flows on through two body
+diodes back into the bus, behind the source's resistance ``R_s`` with the bulk capacitor
+``C`` across it (a source that takes current back, ``supply.sink = true``), while the
+armature lets go. The capacitor's voltage ``u`` is a sixth state of the armature's run
+(as in the pull-in, :func:`coildrive.model.armature_runs.pull_in`)::
+
+    dlambda/dt = -(u + 2 V_d) - R_off i          i = lambda (1 + beta x) / L_c
+    C du/dt    = (V_s - u)/R_s + i               (while i > 0; the diodes block at 0)
+
+A supply that cannot sink (``supply.sink = false``: an ideal one-way diode in its feed)
+feeds the bus only while it is below ``V_s``: ``max(V_s - u, 0)/R_s``; above it the
+returned current charges ``C`` alone, and the bus stays where the current stops.
+    m dv/dt    = F_spring(x) + F_load - beta lambda^2 / (2 L_c) - d v,   dx/dt = v
+
+The armature rests on the seat (the flux held, :func:`~coildrive.model.armature_flight.fly`
+with ``held``) until the flux falls to the stay current's; it then flies to the open stop
+(bounces on the seat as in :func:`~coildrive.model.armature_runs.release`), the current
+stopping at its first zero; a current still flowing at the open stop decays on there,
+the armature held. Every stretch is the same batched integrator (no closed form with the
+motion). The motion feeds energy back: at constant flux the spring's work raises the
+field's energy ``lambda^2 (x + g0) / (2 K)``, so the bus rises higher than under a still
+coil's decay and the current lingers.
+
+Units: SI throughout (V, A, ohm, H, m, kg, N, s, F).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .armature import (BOUND_FACTOR, MAX_BOUNCES, NOT_OPEN, OPENED, START, ZERO, ArmatureParams,
+                       time_bound)
+from .armature_flight import fly_mixed, is_stiff
+from .armature_runs import ReleaseBatch, bounce_or_stall, bus_time_scale, open_stop, settle_status
+
+
+@dataclass(frozen=True)
+class BusRelease:
+    """:func:`release` 's result: ``run`` the release (times s from the turn-off, the
+    charge ``int i dt`` A*s and ``int i^2 dt`` A^2*s to zero current) and, per point, the
+    highest bus ``highest_bus`` V (the capacitor's highest over the run, or the source's
+    ``V_s`` it relaxes back to, if higher) with ``highest_bus_time`` s (``inf`` when
+    that is ``V_s``), and the bus when the current stops ``bus_at_zero`` V."""
+
+    run: ReleaseBatch
+    highest_bus: np.ndarray
+    highest_bus_time: np.ndarray
+    bus_at_zero: np.ndarray
+
+
+def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
+            max_rounds: int = 4 * MAX_BOUNCES, sink: bool = True) -> BusRelease:
+    """Turn off at t = 0 with the armature seated, ``i_off`` A flowing and the bus at
+    ``v0`` V (at most the source's ``p.v_on``); ``v_diodes`` V the two body diodes'
+    drop ``2 V_d``. ``p``: the release loop's points on the drooping bus (``p.droops``,
+    a linear coil without an eddy term; ``r_off`` the coil's path, ``v_on`` the source);
+    ``sink``: False, a supply that cannot sink (module docstring)."""
+    if p.curves is not None or p.eddy is not None or not p.droops:
+        raise ValueError("the bridge's release on the drooping bus: a linear coil, no eddy term, R_s > 0")
+    n = len(p)
+    i_off, v0, v_d2 = (np.broadcast_to(np.asarray(a, float), (n,)).copy() for a in (i_off, v0, v_diodes))
+    lam_stay = p.flux_closed(p.stay_current)
+    lam_start = p.flux_open(p.start_current)
+    zeros = np.zeros(n)
+    y = np.stack([p.flux_closed(i_off), zeros, zeros, zeros, zeros, v0])
+    off = np.zeros(n, bool)
+    ones = np.ones(n, bool)
+    live = i_off > 0.0
+    high = np.stack([v0.copy(), zeros.copy()])
+    # the electrical decay against a bus no lower than min(v0, V_s), the flight, R_s C
+    bound = (time_bound(zeros, p.l_closed, p.r_off, p.mass, p.stroke, p.damping, p.opening_force(p.stroke))
+             + BOUND_FACTOR * bus_time_scale(p))
+    stiff = is_stiff(p, p.opening_force(p.stroke))
+    steps = np.zeros(n, int)
+    t = zeros.copy()
+    zero_time = np.full(n, np.inf)
+    bus_zero = np.full(n, np.nan)
+    status = np.full(n, -1)
+    stall_gap = np.full(n, np.nan)
+    # seated until the flux falls to the stay current's (the armature held on the seat)
+    seated = live & (i_off > p.stay_current)
+    if seated.any():
+        fl = fly_mixed(p, t, y, bound, seated, off, live, stiff, rtol, held=ones, flux_down=lam_stay,
+                       returns=v_d2, high=high, sink=sink)
+        steps += fl.steps
+        stuck = seated & (fl.end != START)   # (never within the bound: it stays seated)
+        status = np.where(stuck, NOT_OPEN, status)
+        stall_gap = np.where(stuck, 0.0, stall_gap)
+        t = np.where(seated, fl.t, t)
+        y = np.where(seated, fl.y, y)
+        y[0] = np.where(seated & ~stuck, np.minimum(y[0], lam_stay * (1.0 - 1e-12)), y[0])
+    unlatch = t.copy()
+    zero_time = np.where(live, zero_time, 0.0)
+    bus_zero = np.where(live, bus_zero, v0)
+    open_time = np.full(n, np.inf)
+    active = status < 0
+    for _ in range(max_rounds):
+        if not active.any():
+            break
+        fl = fly_mixed(p, t, y, bound, active, off, live, stiff, rtol, returns=v_d2, high=high, sink=sink)
+        steps += fl.steps
+        t = np.where(active, fl.t, t)
+        y = np.where(active, fl.y, y)
+        zero = active & (fl.end == ZERO)
+        zero_time = np.where(zero, t, zero_time)
+        bus_zero = np.where(zero, y[5], bus_zero)
+        live = live & ~zero
+        y[0] = np.where(zero, 0.0, y[0])
+        stays, open_time, status = open_stop(fl.end, active, y, t, lam_start, open_time, status)
+        active = active & ~stays
+        active, status, stall_gap = bounce_or_stall(p, fl.end, active, y, status, stall_gap)
+    status, stall_gap = settle_status(status, stall_gap, y)
+    # current still flowing at the open stop: it decays on into the bus, the armature held
+    tail = (status == OPENED) & live
+    if tail.any():
+        fl = fly_mixed(p, t, y, np.maximum(bound, t) + bound, tail, off, live, stiff, rtol, held=ones,
+                       returns=v_d2, high=high, sink=sink)
+        steps += np.where(tail, fl.steps, 0)
+        done = tail & (fl.end == ZERO)
+        zero_time = np.where(done, fl.t, zero_time)
+        bus_zero = np.where(done, fl.y[5], bus_zero)
+        y = np.where(tail, fl.y, y)
+    v_s = p.v_on
+    above = high[0] > v_s
+    run = ReleaseBatch(status=status, unlatch_time=unlatch, open_time=open_time, zero_time=zero_time,
+                       charge=y[3], square=y[4], stall_gap=stall_gap, bound=bound, steps=steps)
+    return BusRelease(run=run, highest_bus=np.where(above, high[0], v_s),
+                      highest_bus_time=np.where(above, high[1], np.inf), bus_at_zero=bus_zero)
+
+
+def release_over(p: ArmatureParams, i_off, lowest, highest, v_diodes, starts: int,
+                 rtol: float = 1e-7, sink: bool = True) -> BusRelease:
+    """:func:`release` from ``starts`` starting buses evenly over ``[lowest, highest]`` V
+    per point (the range the bus can be in at the turn-off), all in one batch; per point
+    each figure the worst over the starts: the latest unlatch, open stop and zero current,
+    the most charge and ``int i^2 dt``, the highest bus (its time and the bus at zero
+    current from the start that gives it); a point that fails to open from any start
+    fails (``NOT_OPEN``, its gap from that start)."""
+    n = len(p)
+    lo, hi = (np.broadcast_to(np.asarray(a, float), (n,)) for a in (lowest, highest))
+    v0 = np.concatenate([lo + (hi - lo) * k / max(starts - 1, 1) for k in range(starts)])
+    idx = np.tile(np.arange(n), starts)
+    r = release(p.take(idx), np.tile(np.broadcast_to(np.asarray(i_off, float), (n,)), starts), v0,
+                np.tile(np.broadcast_to(np.asarray(v_diodes, float), (n,)), starts), rtol, sink=sink)
+    b = r.run
+
+    def worst(a):
+        return np.max(np.reshape(a, (starts, n)), axis=0)
+
+    status = np.reshape(b.status, (starts, n))
+    failed = status != OPENED
+    gap = np.where(failed, np.reshape(b.stall_gap, (starts, n)), -np.inf).max(axis=0)
+    k_bus = np.argmax(np.reshape(r.highest_bus, (starts, n)), axis=0)
+    cols = np.arange(n)
+    run = ReleaseBatch(status=np.where(failed.any(axis=0), NOT_OPEN, OPENED),
+                       unlatch_time=worst(b.unlatch_time), open_time=worst(b.open_time),
+                       zero_time=worst(b.zero_time), charge=worst(b.charge), square=worst(b.square),
+                       stall_gap=np.where(failed.any(axis=0), gap, np.nan), bound=worst(b.bound),
+                       steps=np.reshape(b.steps, (starts, n)).sum(axis=0))
+    return BusRelease(run=run, highest_bus=worst(r.highest_bus),
+                      highest_bus_time=np.reshape(r.highest_bus_time, (starts, n))[k_bus, cols],
+                      bus_at_zero=np.reshape(r.bus_at_zero, (starts, n))[k_bus, cols])
