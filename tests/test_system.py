@@ -643,14 +643,14 @@ def test_simulated_rail_under_the_bound_at_every_step(doc):
 
 
 # --------------------------------------------------------------------------- a current-mode channel
-def _current_mode_system(folder, control="hysteretic", hold=None, limit="3 A"):
+def _current_mode_system(folder, control="hysteretic", hold=None, limit="3 A", gain=20):
     """The manifold with its two purge valves on a hysteretic current-mode hold (a 3 us
     comparator delay), on a copy of the board with 1 % sense-resistor and 1 % gain
-    tolerances: the system file's path."""
+    tolerances (and the sense amplifier's ``gain``): the system file's path."""
     folder.mkdir(exist_ok=True)
     board = (EXAMPLES.parent / "boards" / "manifold-m32-6ch.toml").read_text()
     board = board.replace('position = "coil"', 'position = "coil"\nresistance_tolerance = 0.01\n'
-                          'gain_tolerance = 0.01')
+                          'gain_tolerance = 0.01').replace("gain = 20\n", f"gain = {gain}\n")
     (folder / "board.toml").write_text(board)
     here = 'board = "board.toml"'
     for name in ("dispense-valve-24v.toml", "purge-valve-24v.toml"):
