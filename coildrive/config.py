@@ -1777,13 +1777,9 @@ def _latch_drive(source, path, data, brd, coil, sheet, supply, ambient, thermal,
         key = "coil.operate_time" if coil.operate_time else "coil.release_time"
         why = ("the datasheet's operate or release time: they time a monostable coil's peak and "
                "release, which it does not have")
-    elif coil.flux_current and (armature is not None or coil.eddy_resistance):
-        key, why = (("armature", "a flux-linkage curve and a moving [armature] together (the set "
-                     "pulse's seat run and seated rise take the linear L(x))") if armature is not None else
-                    ("coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance",
-                     "a flux-linkage curve and an eddy-current term together (its pulses' samples and "
-                     "emulated device are not built for the eddy split on a curve: a curve or an eddy "
-                     "term, not both)"))
+    elif coil.flux_current and armature is not None:
+        key, why = "armature", ("a flux-linkage curve and a moving [armature] together (the set pulse's seat "
+                                "run and seated rise take the linear L(x))")
     elif thermal.resistance > 0 and not thermal.capacity > 0:
         key, why = "thermal.capacity", ("no heat capacity (the pulses' heat and the interval between "
                                         "them need it: give thermal.capacity or time_constant)")
