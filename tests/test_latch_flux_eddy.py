@@ -166,3 +166,29 @@ def test_set_pulse_against_ngspice(tmp_path, eddy_bridge):
     assert res["eed"] == pytest.approx(p.eddy_j, rel=0.01)
     assert p.supply_j == pytest.approx(p.copper_j + p.switch_sense_j + p.freewheel_j + p.returned_j + p.eddy_j,
                                        rel=1e-12)
+
+
+@pytest.mark.compiler
+def test_compiled_driver_in_the_loop(tmp_path, eddy_bridge, monkeypatch):
+    # gcc builds firmware-driver's C; in the loop (the design's physics: plumbing) the
+    # driver's pulses pass check at 9 V with the coil at 100 degC
+    from conftest import require_tool
+    from test_emulator_device import capture_of, run as run_device
+
+    from coildrive.bench.device import DeviceOptions
+    from coildrive.bench.latch_check import check_latch_capture
+    from coildrive.bench.latch_firmware_device import LatchFirmwareDevice
+    from coildrive.codegen.host_build import build_latch_firmware
+    from coildrive.codegen.latch_driver import pulse_switches
+
+    require_tool("gcc")
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "cache"))
+    path, d = eddy_bridge
+    r = run_cli("firmware-driver", str(path), "--out", str(tmp_path / "fw"))
+    assert r.returncode == 0, r.stderr
+    dev = LatchFirmwareDevice(d, build_latch_firmware(tmp_path / "fw", d), pulse_switches(d),
+                              DeviceOptions(noise_codes=0.5, seed=5, supply=9.0, coil_temp=100.0))
+    msgs, _ = run_device(dev, 0.05 + dev.interval + 2.2 * dev.period, step=0.05)
+    rep = check_latch_capture(capture_of(msgs, tmp_path / "fw.cdcap"), d, coil_temp=100.0)
+    assert rep.ok, [(i.name, i.detail) for i in rep.items]
+    assert [k for k, _ in dev.starts][:2] == ["set", "reset"]
