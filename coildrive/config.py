@@ -1482,8 +1482,8 @@ def _read_boost(s: "_Section") -> tuple:
 def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, freewheel: Freewheel,
                  supply: Supply, hold: Hold, pull_in: PullIn, armature: Armature | None,
                  duty) -> None:
-    """What the boosted peak (``supply.boost``) is modelled with: a linear coil (an eddy
-    term too) or a flux-linkage curve (without an eddy term), a low-side
+    """What the boosted peak (``supply.boost``) is modelled with: a linear coil or a
+    flux-linkage curve (an eddy term too, either way), a low-side
     or a high-side switch or a full bridge (the boost switch feeding leg A's high side, the
     release into the main bus: :func:`_check_bridge` says what a bridge takes), a
     diode/zener/resistor freewheel (split decay too) or a clamp across a low-side or a
@@ -1509,10 +1509,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "converter draws boost_power / its efficiency from the main bus, expected it "
                          "(e.g. 0.85)")
     why = None
-    if coil.flux_current and coil.eddy_resistance:
-        key = "coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance"
-        why = "a flux-linkage curve and an eddy-current term together"
-    elif supply.droops and coil.flux_current:
+    if supply.droops and coil.flux_current:
         key, why = "supply.source_resistance", ("a drooping main supply and a flux-linkage curve together "
                                                 "(the hold's hand-over onto the bus is a linear coil's)")
     elif supply.droops and coil.eddy_resistance:
@@ -1543,8 +1540,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                                            "not at a time after the pull-in)")
     if why is not None:
         raise InputError(source, key, f"the boosted peak (supply.boost) is not modelled with {why}: "
-                         "expected boost left out, or a linear coil (an eddy term too) or a flux-linkage "
-                         "curve (not both), a low-side or "
+                         "expected boost left out, or a linear coil or a flux-linkage curve (an eddy term "
+                         "too), a low-side or "
                          "high-side switch or a "
                          "full bridge, a "
                          "diode/zener/resistor freewheel (split decay too) or a clamp, a stiff "
@@ -1794,12 +1791,9 @@ def _latch_drive(source, path, data, brd, coil, sheet, supply, ambient, thermal,
         key = "coil.operate_time" if coil.operate_time else "coil.release_time"
         why = ("the datasheet's operate or release time: they time a monostable coil's peak and "
                "release, which it does not have")
-    elif coil.flux_current and (armature is not None or coil.eddy_resistance):
-        key, why = (("armature", "a flux-linkage curve and a moving [armature] together (the set "
-                     "pulse's seat run and seated rise take the linear L(x))") if armature is not None else
-                    ("coil.eddy_time_constant" if coil.eddy_time_constant else "coil.eddy_resistance",
-                     "a flux-linkage curve and an eddy-current term together (a curve or an eddy term, "
-                     "not both)"))
+    elif coil.flux_current and armature is not None:
+        key, why = "armature", ("a flux-linkage curve and a moving [armature] together (the set pulse's seat "
+                                "run and seated rise take the linear L(x))")
     elif thermal.resistance > 0 and not thermal.capacity > 0:
         key, why = "thermal.capacity", ("no heat capacity (the pulses' heat and the interval between "
                                         "them need it: give thermal.capacity or time_constant)")

@@ -122,10 +122,12 @@ def predict_pulse(design, name: str, supply: float, coil_temp: float, zero_curre
     """The model's figures of pulse ``name`` at ``supply`` V with the coil at ``coil_temp``
     degC and the design's nominal R and L: ``length_s``, ``end_current_a``, the slope at the
     end ``slope_a_s`` (A/s), ``time_to_zero_s`` (down to ``zero_current`` A) and the time
-    one code ``resolution`` A takes there, ``code_time_s``."""
+    one code ``resolution`` A takes there, ``code_time_s`` -- of the current the sense reads
+    (with an eddy term the terminal current, not the magnetising one)."""
     from ..design.latch import firmware_pulse, rise_current_at, winding_drive
     from ..model.circuit import loop
     from ..model.rl import decay_time
+    from ..model.eddy import EddyCoil
     from ..model.flux import incremental_at
 
     length = firmware_pulse(design, name, supply)   # a compensated pulse: the entry read there
@@ -138,13 +140,30 @@ def predict_pulse(design, name: str, supply: float, coil_temp: float, zero_curre
         i_end = _seated_end(wd, lp, length, supply, coil_temp)
     # a flux-linkage curve's slopes take its incremental inductance where they are read
     ind = lp.inductance
-    level = min(zero_current, i_end)
-    l_end, l_level = (float(np.ravel(incremental_at(ind, i))[0]) for i in (i_end, level))
-    slope = max((float(lp.v_on[0]) - float(lp.r_on[0]) * i_end) / l_end, 0.0)
+    v_on, r_on = float(lp.v_on[0]), float(lp.r_on[0])
     r_off, v_off = float(np.ravel(rel.r_off)[0]), float(np.ravel(rel.v_off)[0])
+    if isinstance(ind, EddyCoil):
+        # the sense reads the terminal current (model/eddy.py): k_on (i_m + V/R_e) on, k_off
+        # (i_m - V_off/R_e) freewheeling (k = R_e/(R + R_e) of each loop), and moves k times as
+        # fast as the magnetising current, whose flux changes at k (V - R i_m) on and -k (V_off
+        # + R_off i_m) off
+        r_e = float(np.ravel(ind.resistance)[0])
+        k_on, k_off = r_e / (r_on + r_e), r_e / (r_off + r_e)
+        mag = ind.magnetising
+        level_t = min(zero_current, k_off * (i_end - v_off / r_e))
+        level = level_t / k_off + v_off / r_e                  # the magnetising current there
+        l_end, l_level = (float(np.ravel(incremental_at(mag, i))[0]) for i in (i_end, level))
+        slope = max(k_on * k_on * (v_on - r_on * i_end) / l_end, 0.0)
+        fall = k_off * k_off * (r_off * level + v_off) / l_level
+        i_sensed = k_on * (i_end + v_on / r_e)
+    else:
+        level = min(zero_current, i_end)
+        l_end, l_level = (float(np.ravel(incremental_at(ind, i))[0]) for i in (i_end, level))
+        slope = max((v_on - r_on * i_end) / l_end, 0.0)
+        fall = (r_off * level + v_off) / l_level
+        i_sensed = i_end
     t_zero = float(np.ravel(decay_time(level, i_end, r_off, v_off, ind))[0])
-    fall = (r_off * level + v_off) / l_level
-    return {"length_s": length, "end_current_a": i_end, "slope_a_s": slope, "time_to_zero_s": t_zero,
+    return {"length_s": length, "end_current_a": i_sensed, "slope_a_s": slope, "time_to_zero_s": t_zero,
             "code_time_s": resolution / fall}
 
 

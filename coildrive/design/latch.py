@@ -89,8 +89,9 @@ class PulseResult:
     ``energy_corner``: ``supply_j`` (from the supply while on), ``copper_j`` (the coil's
     copper, pulse and decay), ``switch_sense_j`` (the switches and the sense resistor),
     ``freewheel_j`` (the freewheel path: a bridge's two body diodes), ``returned_j`` (back
-    to the bus: a bridge's fast decay; 0 otherwise); ``supply_j`` is the sum of the other
-    four. ``stored_j``: the energy in the coil's field when the pulse ends (there), which
+    to the bus: a bridge's fast decay; 0 otherwise), ``eddy_j`` (an eddy-current term's
+    resistance, on, freewheeling and while the flux dies through it alone; 0 without one);
+    ``supply_j`` is the sum of the other five. ``stored_j``: the energy in the coil's field when the pulse ends (there), which
     its decay takes out again: ``int_0^I i dpsi`` on a flux-linkage curve (``I psi(I) -
     W'(I)``), ``1/2 L I^2`` for a linear coil (the magnetising branch's with an eddy
     term). ``decay_time_s``: after the pulse, the longest time to zero current.
@@ -145,6 +146,7 @@ class PulseResult:
     seat_time_s: float | None = None
     seat_corner: str = ""
     open_time_s: float | None = None
+    eddy_j: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -333,6 +335,10 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     stored = stored_energy(ind.magnetising if isinstance(ind, EddyCoil) else ind, i_top)
     # the armature's share: what the supply gave that no element took (zero current at both ends)
     moved = supply_e - copper - sw_sense - fw - returned if pin is not None and ticks else 0.0 * supply_e
+    # an eddy term's share, by the same balance (the pulse starts and ends at zero flux: what
+    # the supply gave that the loop's elements did not take went into R_e)
+    eddy_e = (supply_e - copper - sw_sense - fw - returned if isinstance(ind, EddyCoil) and pin is None
+              else 0.0 * supply_e)
     k_e = worst(supply_e)
     # the switch voltage at the end of the longest pulse, and a pumped bus
     v_sw = rel.switch_voltage(wd, i_top)
@@ -377,6 +383,7 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
         decay_time_s=float(np.max(t_zero)), peak_switch_voltage_v=v_sw_top,
         switch_voltage_corner=pts.label(k_v), droop_v=droop, recharge_time_s=recharge,
         recharge_corner=recharge_corner, lowest_node_v=node, armature_j=float(moved[k_e]),
+        eddy_j=float(eddy_e[k_e]),
         seat_time_s=None if pin is None else float(t_req[k_req]),
         seat_corner="" if pin is None else pts.label(k_req))
     limit = drive.switch.max_voltage * drive.switch.derating

@@ -49,6 +49,7 @@ def latch_table(d: LatchDesign) -> Table:
                          f"sense {p.switch_sense_j * 1e3:.4g} mJ, freewheel path {p.freewheel_j * 1e3:.4g} mJ, "
                          f"back to the bus {p.returned_j * 1e3:.4g} mJ"
                          + (f", the armature {p.armature_j * 1e3:.4g} mJ" if p.armature_j else "")
+                         + (f", the eddy currents {p.eddy_j * 1e3:.4g} mJ" if p.eddy_j else "")
                          + f"; in the field at its end {p.stored_j * 1e3:.4g} mJ"))
         t.add_row(f"  after the {p.name} pulse", f"{p.decay_time_s * 1e3:.4g} ms",
                   escape(f"to zero current; switches up to {p.peak_switch_voltage_v:.4g} V "

@@ -66,6 +66,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import flux_boost, linear2, rlc
+from .eddy import EddyCoil
 from .flux import FluxCoil
 from .rl import rise_current, rise_time
 
@@ -114,11 +115,23 @@ def boost(v_b, c, r, l, r_e=None):
     """The boost of the module docstring at each point, with an eddy resistance ``r_e``
     ohm across the magnetising branch ``l`` H (``None``: none); ``l`` a
     :class:`~coildrive.model.flux.FluxCoil` gives :mod:`coildrive.model.flux_boost`'s
-    (no eddy term)."""
+    (an eddy term too)."""
     if isinstance(l, FluxCoil):
-        return flux_boost.boost(v_b, c, r, l)
+        return flux_boost.boost(v_b, c, r, l, r_e)
     g_e = 0.0 if r_e is None else 1.0 / np.asarray(r_e, float)
     return Boost(*np.broadcast_arrays(*(np.asarray(x, float) for x in (v_b, c, r, l, g_e))))
+
+
+def one_point(ind) -> tuple:
+    """``(magnetising branch, eddy resistance ohm or None)`` of one operating point's coil
+    as :func:`boost` takes them: ``ind`` H, a :class:`~coildrive.model.flux.FluxCoil` or an
+    :class:`~coildrive.model.eddy.EddyCoil` (either branch) of one point."""
+    r_e = None
+    if isinstance(ind, EddyCoil):
+        ind, r_e = ind.magnetising, float(np.ravel(ind.resistance)[0])
+    if isinstance(ind, FluxCoil):
+        return ind.with_scale(float(np.ravel(ind.scale)[0])), r_e
+    return float(np.ravel(ind)[0]), r_e
 
 
 def with_voltage(b, v_b):

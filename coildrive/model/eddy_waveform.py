@@ -172,17 +172,18 @@ def _peak(drive: Drive, lp: Loop, peak_time: float, big: int):
     ``(point, magnetising current at the peak's end A, [time], [terminal], [magnetising],
     [switch_on])``; on a drooping bus (``supply.source_resistance``) the peak's closed
     form of :mod:`coildrive.model.supply` (a curve: :mod:`coildrive.model.flux_bus`'s
-    run), from a boost (``supply.boost``, at its nominal) :mod:`coildrive.model.boost`'s."""
+    run), from a boost (``supply.boost``, at its nominal) :mod:`coildrive.model.boost`'s (a
+    curve: :mod:`coildrive.model.flux_boost`'s)."""
     e = lp.inductance[...]
     v, r_on = (float(np.ravel(x)[0]) for x in (lp.v_on, lp.r_on))
     tp = np.linspace(0.0, peak_time, big + 1)
     if drive.supply.boosted:
         s = drive.supply
-        b = boost_model.boost(s.boost, s.boost_capacitance, r_on + s.boost_resistance,
-                              float(np.ravel(e.magnetising)[0]), float(np.ravel(e.resistance)[0]))
-        mp, vp = boost_model.state(tp, b)
+        b = boost_model.boost(s.boost, s.boost_capacitance, r_on + s.boost_resistance, *boost_model.one_point(e))
+        m = boost_model.of(b)
+        mp, vp = m.state(tp, b)
         peak_end = float(mp[-1])
-        return _Point(lp, peak_end), peak_end, [tp], [boost_model.terminal(mp, vp, b)], [mp], [np.ones_like(tp)]
+        return _Point(lp, peak_end), peak_end, [tp], [m.terminal(mp, vp, b)], [mp], [np.ones_like(tp)]
     if drive.supply.droops:
         s = drive.supply
         mag, r_e = e.magnetising, float(np.ravel(e.resistance)[0])

@@ -407,7 +407,7 @@ def current(coil: FluxCoil, t, i0, v, r, iterations: int = 80):
             lo_ = np.where(toward_i0, lo_, x)
             # dt/di (negative when falling); infinite on the asymptote v/r itself (a bracket
             # end the search can land on): the step is then bad and bisects
-            with np.errstate(divide="ignore", invalid="ignore"):
+            with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
                 slope = kk.incremental(x) / (v_ - r_ * x)
                 nxt = x - f / slope
             bad = ~np.isfinite(nxt) | (nxt < lo_) | (nxt > hi_)

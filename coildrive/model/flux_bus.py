@@ -440,6 +440,10 @@ def _hermite(y0, y1, d0, d1, s):
             + (s3 - s2) * d1)
 
 
+#: The cubic Hermite interpolant (:func:`_hermite`), for the modules that read a record.
+hermite = _hermite
+
+
 def hermite_root(y0, y1, d0, d1, target, where, iterations: int = 8):
     """``s`` in ``[0, 1]`` where the Hermite interpolant reaches ``target`` (between ``y0``
     and ``y1`` where ``where``; 1 elsewhere): Newton's method on the cubic from the chord's
@@ -468,6 +472,16 @@ def segments(rec: Record):
     t0, h = rec.t[:-1], np.diff(rec.t, axis=0)
     return (t0, h, rec.i[:-1], rec.i[1:], rec.di[:-1] * h, rec.di[1:] * h,
             rec.v[:-1], rec.v[1:], rec.dv[:-1] * h, rec.dv[1:] * h)
+
+
+def terminal_segments(rec: Record, fb: FluxBus):
+    """:func:`segments`' first six rows of the terminal current ``k (i_m + g_e v)`` (a
+    fixed combination of the two recorded cubics: itself a Hermite cubic); the current
+    itself without an eddy term."""
+    t0, h, i0, i1, di0, di1, v0, v1, dv0, dv1 = segments(rec)
+    k = 1.0 / (1.0 + fb.r * fb.g_e)
+    return (t0, h, terminal(i0, v0, fb), terminal(i1, v1, fb), k * (di0 + fb.g_e * dv0),
+            k * (di1 + fb.g_e * dv1))
 
 
 def first_crossing(t0, h, y0, y1, d0, d1, target, rising: bool, before=None):

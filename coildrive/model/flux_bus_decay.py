@@ -110,21 +110,11 @@ def _record(i0, v0, v_s, r_s, c, r, coil: FluxCoil, v_d, r_e=None):
     return fb.with_record(rec), rec
 
 
-def _terminal_segments(rec, fb):
-    """:func:`coildrive.model.flux_bus.segments`' first six rows of the terminal current
-    ``k (i_m + g_e u)`` (a fixed combination of the two recorded cubics: itself a Hermite
-    cubic); the current itself without an eddy term."""
-    t0, h, i0, i1, di0, di1, u0, u1, du0, du1 = flux_bus.segments(rec)
-    k = 1.0 / (1.0 + fb.r * fb.g_e)
-    return (t0, h, terminal(i0, u0, fb), terminal(i1, u1, fb), k * (di0 + fb.g_e * du0),
-            k * (di1 + fb.g_e * du1))
-
-
 def _fall(seg, target):
     """Time (s) a recorded quantity first falls to ``target`` (per point; 0 where it starts
     at or below it): the cubic Hermite interpolant of the first step that reaches it
     (``seg``: :func:`coildrive.model.flux_bus.segments`' first six rows, or
-    :func:`_terminal_segments`)."""
+    :func:`coildrive.model.flux_bus.terminal_segments`)."""
     t, _ = flux_bus.first_crossing(*seg, target, rising=False)
     return np.where(seg[2][0] <= target, 0.0, t)
 
@@ -176,7 +166,7 @@ def _decay(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d, r_e=None):
     """:func:`decay` on broadcast points: ``(FastDecay, its Record, the circuit)`` (with an
     eddy term ``r_s`` may be ``inf``: the capacitor alone, the feed blocked)."""
     fb, rec = _record(i0, v0, v_s, r_s, c, r, coil, v_d, r_e)
-    seg, flow = flux_bus.segments(rec)[:6], _terminal_segments(rec, fb)
+    seg, flow = flux_bus.segments(rec)[:6], flux_bus.terminal_segments(rec, fb)
     t_zero = _fall(flow, 0.0)
     t_drop = np.minimum(_fall(seg, i_drop), t_zero)
     i_z, u_z = flux_bus.state(t_zero, fb)
@@ -217,7 +207,7 @@ def decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d, r_e=None)
     t_a = np.where(v0 >= v_s, 0.0, np.where(reach, t_reach, fed.zero_time))
     i_a = np.where(v0 >= v_s, i0, np.where(reach, i_reach, 0.0))
     v_a = np.where(blocked, np.maximum(v0, v_s), fed.bus_at_zero)
-    q_a = np.where(v0 >= v_s, 0.0, np.where(reach, _charge(_terminal_segments(rec, fb), t_a), fed.charge))
+    q_a = np.where(v0 >= v_s, 0.0, np.where(reach, _charge(flux_bus.terminal_segments(rec, fb), t_a), fed.charge))
     if r_e is not None:   # the capacitor alone (the points that never reach v_s run it from i0, unused)
         alone = _decay(np.where(blocked, i_a, i0), np.where(blocked, v_a, v_s), i_drop, v_s, np.full_like(v_s, np.inf),
                        c, r, coil, v_d, r_e)[0]

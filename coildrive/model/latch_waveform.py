@@ -30,8 +30,9 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..config import Drive
-from . import flux_bus
+from . import eddy, flux_bus
 from . import supply as bus_model
+from .eddy import EddyCoil
 from .circuit import full_bridge, loop
 from .flux import FluxCoil
 from .rl import decay_current, decay_time, rise_current
@@ -71,11 +72,15 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
            t_pulse: float, points: int):
     """One pulse from zero: ``(t, i, on, bus, t_zero, release loop, gap)`` relative to its
     start (s, A, 0/1, the bus while on V), the time its current reaches zero, and with a
-    moving armature its gap (m; 0 through the decay: the catch holds it), else ``None``."""
+    moving armature its gap (m; 0 through the decay: the catch holds it), else ``None``.
+    With an eddy term (:mod:`coildrive.model.eddy`, a linear or a saturating branch) ``i``
+    is the terminal current (what the sense and the switches carry): ``(v + R_e i_m)/(R +
+    R_e)`` on, ``(R_e i_m - V_off)/(R_off + R_e)`` freewheeling until it reaches zero."""
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
     rel = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
     v, r_on = float(lp.v_on), float(lp.r_on)
-    ind = lp.inductance if isinstance(lp.inductance, FluxCoil) else float(lp.inductance)
+    ind = lp.inductance if isinstance(lp.inductance, (FluxCoil, EddyCoil)) else float(lp.inductance)
+    r_e = float(np.ravel(ind.resistance)[0]) if isinstance(ind, EddyCoil) else None
     t_on = np.linspace(0.0, t_pulse, points + 1)
     gap_on = None
     if drive.armature is not None:   # the set pulse moves the armature; config: no droop then
@@ -83,10 +88,13 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
         bus = np.full(t_on.shape, v)
     elif drive.supply.droops:
         s = drive.supply
-        if isinstance(ind, FluxCoil):   # a curve's drooping bus (model.flux_bus)
-            i_on, bus = flux_bus.state(t_on, flux_bus.bus(v, s.source_resistance, s.capacitance, r_on, ind))
+        mag = ind.magnetising if r_e is not None else ind
+        if isinstance(mag, FluxCoil):   # a curve's drooping bus (model.flux_bus)
+            b = flux_bus.bus(v, s.source_resistance, s.capacitance, r_on, mag, r_e)
+            i_on, bus = flux_bus.state(t_on, b)
         else:
-            i_on, bus = bus_model.state(t_on, bus_model.bus(v, s.source_resistance, s.capacitance, r_on, ind))
+            b = bus_model.bus(v, s.source_resistance, s.capacitance, r_on, float(np.ravel(mag)[0]), r_e)
+            i_on, bus = bus_model.state(t_on, b)
     else:
         i_on, bus = rise_current(t_on, 0.0, v, r_on, ind), np.full(t_on.shape, v)
     i_top = float(i_on[-1])
@@ -94,6 +102,9 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
     tz = float(decay_time(0.0, i_top, r_off, v_off, ind))
     t_d = np.linspace(0.0, tz, points + 1)[1:]
     i_d = np.maximum(decay_current(t_d, i_top, r_off, v_off, ind), 0.0)
+    if r_e is not None:   # the magnetising currents to the terminal current (model.eddy): on, then freewheeling
+        i_on = eddy.terminal(i_on, bus, r_on, r_e)
+        i_d = np.maximum(eddy.terminal(i_d, -v_off, r_off, r_e), 0.0)
     t = np.concatenate([t_on, t_pulse + t_d])
     i = np.concatenate([i_on, i_d])
     on = np.concatenate([np.ones(t_on.size), np.zeros(t_d.size)])

@@ -225,13 +225,10 @@ def nominal_boost(drive: Drive, r_on: float, ind) -> boost_model.Boost:
     """The boost at its nominal voltage and capacitance feeding the on-loop ``r_on`` ohm
     (with the boost path's own resistance), ``ind`` H (or an
     :class:`~coildrive.model.eddy.EddyCoil` of one point: its magnetising branch and eddy
-    resistance; or a :class:`~coildrive.model.flux.FluxCoil` of one point:
+    resistance, either branch; or a :class:`~coildrive.model.flux.FluxCoil` of one point:
     :mod:`coildrive.model.flux_boost`'s)."""
     s = drive.supply
-    r_e = None
-    if isinstance(ind, EddyCoil):
-        ind, r_e = float(np.ravel(ind.magnetising)[0]), float(np.ravel(ind.resistance)[0])
-    return boost_model.boost(s.boost, s.boost_capacitance, r_on + s.boost_resistance, ind, r_e)
+    return boost_model.boost(s.boost, s.boost_capacitance, r_on + s.boost_resistance, *boost_model.one_point(ind))
 
 
 def _mixed_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_time: float,
