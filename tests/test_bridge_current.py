@@ -487,3 +487,28 @@ def test_hysteretic_with_the_sense_in_the_common_return_fails_its_check(tmp_path
     d = design(load_drive(_variant(tmp_path, board=common_return_board(tmp_path))))
     check = next(c for c in d.checks if c.name == "current_mode_sense")
     assert not check.ok and "common return" in check.detail and 'control = "off_time"' in check.detail
+
+
+def test_an_eddy_terms_step_chatters_on_a_cold_coil(tmp_path):
+    """With an eddy term (300 ohm) the sensed current steps by ``V / (R_on + R_e)`` at each
+    edge of the slow decay (the on and the recirculating loop have the same resistance:
+    Q1 + Q4 or Q2 + Q4 and the inline sense resistor). At the settled coil the band is
+    wider than that step; a coil switched on cold has less resistance, a larger step and
+    the switch chatters: `current_mode_step` fails there, naming the cold corner, the step
+    written afresh (copper R(T) by IEC 60028, alpha = 0.00393 /K) above the band."""
+    import re
+
+    path = _variant(tmp_path, ('resistance = "24 ohm"', 'resistance = "24 ohm"\neddy_resistance = "300 ohm"'))
+    d = json.loads(run_cli("design", str(path), "--json").stdout)
+    step = next(c for c in d["checks"] if c["name"] == "current_mode_step")
+    assert not step["ok"] and "(cold)" in step["detail"], step
+    m = re.search(r"\(([\d.]+) V, (-?[\d.]+) degC, coil (-?[\d.]+) degC \(cold\), R([-+][\d.]+)%", step["detail"])
+    v, amb, coil, r_pct = (float(x) for x in m.groups())
+    drive = load_drive(path)
+    r_on = (24.0 * (1 + 0.00393 * (coil - 20.0)) * (1 + r_pct / 100) + 2 * drive.switch.on_resistance
+            + drive.board.sense.resistance)
+    band = d["current_mode"]["band_a"]
+    assert v / (r_on + 300.0) > band
+    # the settled corners' steps are all within the band (the design passed before)
+    assert all(c["supply_v"] / (c["resistance_ohm"] + 2 * drive.switch.on_resistance + drive.board.sense.resistance
+                                + 300.0) < band for c in d["corners"])
