@@ -60,11 +60,9 @@ from .supply import terminal
 
 #: Steps over the bound on the first zero (module docstring).
 STEPS = 100
-#: The first stretch: :data:`SETTLE_STEPS` steps over ``SETTLE R_s C`` (module docstring).
-SETTLE = 25.0
-SETTLE_STEPS = 60
-#: Steps per fastest coil time constant and per LC ringing period.
-PER_TIME_CONSTANT = 10
+#: The first stretch: :data:`SETTLE_STEPS` steps over ``SETTLE R_s C`` (module docstring);
+#: steps per fastest coil time constant and per LC ringing period: the peak's run's own.
+SETTLE, SETTLE_STEPS, PER_TIME_CONSTANT = flux_bus.SETTLE, flux_bus.SETTLE_STEPS, flux_bus.PER_TIME_CONSTANT
 #: Further stretches tried when a point's current has not crossed zero.
 EXTENSIONS = 8
 
