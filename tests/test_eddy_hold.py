@@ -217,6 +217,7 @@ def test_closed_loop_plant_and_margins_against_scipy_signal():
     class Lp:   # one operating point's loop, the element values of this file
         v_on, r_on, r_off, v_off = np.array(V), np.array(R_ON), np.array(R_OFF), np.array(V_OFF)
         inductance = EddyCoil(np.array(L), np.array(R_E))
+        mixed = None    # no bridge's mixed decay
 
     f, counts, cpa = 25e3, 3360, 2400.0
     for duty, leg in ((0.3, False), (0.6, False), (0.3, True)):
@@ -288,7 +289,7 @@ def test_sampled_plant_follows_a_duty_step_of_the_switched_circuit():
 
     from types import SimpleNamespace
     lp = SimpleNamespace(v_on=np.array(V), r_on=np.array(R_ON), r_off=np.array(R_OFF),
-                         v_off=np.array(v_off), inductance=EddyCoil(np.array(ell), np.array(R_E)))
+                         v_off=np.array(v_off), inductance=EddyCoil(np.array(ell), np.array(R_E)), mixed=None)
     p = loop_gains.plant(lp, np.array([d0 + dd / 2]), np.array([m0[-1]]), f, 1, 1.0, False)
     gain = float(p.sensed[0] * p.vg[0] / p.r_eff[0])
     # within 1 %: the averaged plant leaves out that a longer on-time also moves the edge

@@ -122,11 +122,10 @@ def plant(lp, duty, current, frequency: float, counts: int, codes_per_amp: float
         sensed = k_on if switch_leg else np.where(d >= 0.5, k_on, k_off)
         coil = coil.magnetising
     v_on, r_on, v_off, r_off = k_on * lp.v_on, k_on * lp.r_on, k_off * lp.v_off, k_off * lp.r_off
-    mixed = getattr(lp, "mixed", None)   # (a loop-like object may leave it out: none)
-    if mixed is not None:   # a bridge's mixed decay (no eddy term: config refuses it)
-        phi = mixed.fraction
-        v_off = phi * mixed.v_fast + (1.0 - phi) * v_off
-        r_off = phi * mixed.r_fast + (1.0 - phi) * r_off
+    if lp.mixed is not None:   # a bridge's mixed decay (no eddy term: config refuses it)
+        phi = lp.mixed.fraction
+        v_off = phi * lp.mixed.v_fast + (1.0 - phi) * v_off
+        r_off = phi * lp.mixed.r_fast + (1.0 - phi) * r_off
     vg = v_on + v_off - (r_on - r_off) * i
     r_eff = d * r_on + (1.0 - d) * r_off
     t = 1.0 / frequency
