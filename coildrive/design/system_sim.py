@@ -218,12 +218,13 @@ class LatchRun:
     from the set pulse's switch-on), ``current`` (A, the pulsing winding's, its magnitude),
     ``switch_on`` (0/1, a pulse's switches), ``switches`` (a full bridge's: both pulses'
     pairs, so that all four open with current flowing is its fast decay into the rail;
-    else ``None``)."""
+    else ``None``); no split decay's bypass (``bypass_on`` ``None``)."""
 
     time: np.ndarray
     current: np.ndarray
     switch_on: np.ndarray
     switches: dict | None
+    bypass_on: None = None
 
 
 def latch_run(d, supply: float, coil_temp: float, hold_time: float, r_factor: float, l_factor: float,
@@ -312,6 +313,6 @@ def on_grid(w, start: float, t: np.ndarray) -> tuple[np.ndarray, ...]:
     if w.switches is not None:
         open_all = np.all([s[last][k] == 0 for s in w.switches.values()], axis=0)
         back = (inside & open_all & (i > 0)).astype(np.int8)
-    bypass = np.zeros(len(t), np.int8) if getattr(w, "bypass_on", None) is None else \
+    bypass = np.zeros(len(t), np.int8) if w.bypass_on is None else \
         np.where(inside, w.bypass_on[last][k], 0).astype(np.int8)
     return i, sw, back, bypass
