@@ -1488,8 +1488,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     release into the main bus: :func:`_check_bridge` says what a bridge takes), a
     diode/zener/resistor freewheel (split decay too) or a clamp across a low-side or a
     high-side switch, a stiff or a drooping main supply (the main bus feeds the hold from
-    the hand-over: :func:`coildrive.design.supply.handover_bus`; not with an eddy term or a
-    full bridge), a PWM
+    the hand-over: :func:`coildrive.design.supply.handover_bus`, a linear coil, a curve or
+    an eddy term; not on a full bridge), a PWM
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
     mode), a peak that ends at its threshold. A moving armature
     (:mod:`coildrive.model.armature_boost`): a linear coil (an eddy term too), a
@@ -1509,13 +1509,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "converter draws boost_power / its efficiency from the main bus, expected it "
                          "(e.g. 0.85)")
     why = None
-    if supply.droops and coil.flux_current:
-        key, why = "supply.source_resistance", ("a drooping main supply and a flux-linkage curve together "
-                                                "(the hold's hand-over onto the bus is a linear coil's)")
-    elif supply.droops and coil.eddy_resistance:
-        key, why = "supply.source_resistance", ("a drooping main supply and an eddy-current term together "
-                                                "(the hold's hand-over onto the bus is a plain coil's)")
-    elif supply.droops and switch.topology == "full_bridge":
+    if supply.droops and switch.topology == "full_bridge":
         key, why = "supply.source_resistance", ("a drooping main supply on a full bridge (its release "
                                                 "into the drooping bus after a boost is not modelled)")
     elif hold.mode == "latch":
@@ -1545,7 +1539,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "high-side switch or a "
                          "full bridge, a "
                          "diode/zener/resistor freewheel (split decay too) or a clamp, a stiff "
-                         "main supply (or a drooping one: a linear coil on one switch, no [armature]), a "
+                         "main supply (or a drooping one: one switch, no [armature]), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
                          "with [armature]: no restitution, no mixed decay, no [duty] with an eddy term")
 

@@ -207,8 +207,21 @@ def handover(drive: Drive, lp) -> tuple[np.ndarray, np.ndarray]:
     there) and the current then, :func:`end_current` (the most the main bus takes on)."""
     b = _boost(drive, lp, lp.inductance, True)
     t = _seen(drive, b)
-    t = np.where(np.isfinite(t), t, model.peak_time(b, sensed=True))
+    t = np.where(np.isfinite(t), t, model.of(b).peak_time(b, sensed=True))
     return np.where(np.isfinite(t), t, 0.0), end_current(drive, lp)
+
+
+def handover_magnetising(drive: Drive, lp, t_hand) -> tuple[np.ndarray, np.ndarray]:
+    """``(A, known)`` at each point: the coil's magnetising current at the hand-over
+    ``t_hand`` s (:func:`handover`'s moment, the boost at its highest) -- with an eddy term
+    the state behind the terminal current the sense reads, without one that current
+    itself -- and where it is known (``False`` where the boost never got to a trip or a
+    first maximum: :func:`handover` puts 0 s there)."""
+    b = _boost(drive, lp, lp.inductance, True)
+    t = np.broadcast_to(np.asarray(t_hand, float), np.shape(lp.v_on))
+    known = t > 0
+    i_m = model.of(b).state(np.where(known, t, 0.0), b)[0]
+    return np.broadcast_to(i_m, t.shape), known
 
 
 def _release_loop(res):

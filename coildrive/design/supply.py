@@ -15,6 +15,7 @@ from ..config import Drive
 from ..model import rl
 from ..model import flux_bus
 from ..model.eddy import EddyCoil
+from ..model.eddy import terminal as eddy_terminal
 from ..model.flux import FluxCoil
 from ..model.circuit import split_decay
 from ..model import supply as bus_model
@@ -88,9 +89,11 @@ def steady_current(drive: Drive, lp) -> np.ndarray:
 HANDOVER_PWM = ("the hold's PWM from the hand-over on the drooping bus, exact period by period "
                 "until its orbit repeats (each on-time the bus and coil circuit in closed form; "
                 "where it has not within 5000 periods, the floor below)")
-#: ... where the hold's switching is not a fixed PWM, or a clamp draws in its off-times.
+#: ... where the hold's switching is not a fixed PWM, a clamp draws in its off-times, or the
+#: coil saturates (a flux-linkage curve: no closed form for an on-time on the bus).
 HANDOVER_FLOOR = ("a floor: the source through R_s carries every draw from the hand-over on "
-                  "(the coil at most max(hand-over current, hold top), the boost converter)")
+                  "(the coil at most the largest of the hand-over current, its first on-time "
+                  "from there on a stiff bus and the hold's top; the boost converter)")
 
 
 def converter_current(drive: Drive, v_s, i_top) -> np.ndarray:
@@ -109,6 +112,33 @@ def converter_current(drive: Drive, v_s, i_top) -> np.ndarray:
     return p / np.maximum(v_f, 1e-9)
 
 
+def _pwm_hold(drive: Drive) -> bool:
+    """True when the hold switches at a fixed duty (voltage mode, fixed or a supply table)."""
+    return drive.hold.mode == "voltage" and drive.hold.regulation != "closed_loop"
+
+
+def _first_on_top(drive: Drive, lp, i_m, duty, period) -> np.ndarray:
+    """The most current (A, terminal) the main bus gives the coil in a fixed-duty hold's
+    first on-time from the magnetising current ``i_m`` A at the hand-over, taken on a stiff
+    bus at ``V_s`` (:func:`coildrive.model.rl.rise_current`: a linear coil, a curve, an
+    eddy term's branch; the terminal current ``(V_s + R_e i_m)/(R + R_e)`` at either end
+    with an eddy term). Why it bounds every later draw too: the flux obeys ``dpsi/dt = v_th
+    - R_th i_m`` with the bus at or below ``V_s`` (the main diode blocks it from rising
+    above), so the current on the drooping bus never exceeds the stiff bus's under the
+    same switching (a one-state flow keeps its order; the off-times are the same flow on
+    both); on the stiff bus the period map is increasing, so the period-start currents
+    move monotonically onto the orbit and each on-time's top (an increasing function of
+    its start) lies below the first one's or the orbit's (:func:`handover_bus` takes the
+    hold's top too)."""
+    ind = lp.inductance
+    t_on = np.clip(np.nan_to_num(np.asarray(duty, float)), 0.0, 1.0) * np.asarray(period, float)
+    end = rl.rise_current(t_on, i_m, lp.v_on, lp.r_on, ind)
+    top = np.maximum(end, i_m)
+    if isinstance(ind, EddyCoil):
+        return eddy_terminal(top, lp.v_on, lp.r_on, ind.resistance)
+    return top
+
+
 def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.ndarray, str]:
     """``(lowest bus V, when s after switch-on, hand-over current A, method)`` of a boosted
     peak on a drooping main supply at the points of ``res`` (the most current): the peak
@@ -121,32 +151,43 @@ def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.nd
     circuit with the source ``V_s - R_s I_conv``).
 
     A voltage-mode hold at a fixed duty (fixed or a supply table: ``duty`` at each point,
-    the hold's period) is run exactly period by period
+    the hold's period) on a linear coil (an eddy term too: the circuit's magnetising
+    branch and ``R_e``, from the magnetising current at the hand-over,
+    :func:`coildrive.design.boost.handover_magnetising`) is run exactly period by period
     (:func:`coildrive.model.supply.hold_from`; where its orbit has not repeated within
-    :data:`~coildrive.model.supply.HOLD_PERIODS_MAX` periods, the floor below). A current-mode or a closed-loop hold (its
-    switching follows the current, not a fixed duty) and a clamp across the switch (its
-    off-times, or with split decay its release, draw from the bus too) take the floor of
-    the bus instead
-    (:func:`coildrive.model.supply.bus_floor` with the coil at most the larger of the
-    hand-over current and the hold's top, plus the converter): a bound, lower than the
+    :data:`~coildrive.model.supply.HOLD_PERIODS_MAX` periods, the floor below). A
+    current-mode or a closed-loop hold (its switching follows the current, not a fixed
+    duty), a clamp across the switch (its off-times, or with split decay its release, draw
+    from the bus too) and a flux-linkage curve (an on-time on the bus has no closed form:
+    stepping thousands of them is the cost the floor avoids) take the floor of the bus
+    instead (:func:`coildrive.model.supply.bus_floor` with the coil at most the largest of
+    the hand-over current, the hold's top and -- under a fixed duty -- the first on-time
+    from the hand-over, :func:`_first_on_top`; plus the converter): a bound, lower than the
     bus goes."""
     s = drive.supply
     lp = res.loop
     t_hand, i_hand = boost.handover(drive, lp)
+    i_m, known = boost.handover_magnetising(drive, lp, t_hand)
     top = getattr(res.hold, "terminal_max", None)
     top = np.maximum(i_hand, res.hold.i_max if top is None else top)
     top = np.where(np.isfinite(top), top, i_hand)
+    pwm = _pwm_hold(drive)
+    if pwm:
+        top = np.maximum(top, _first_on_top(drive, lp, np.where(known, i_m, i_hand), duty, res.hold.period))
     i_conv = converter_current(drive, lp.v_on, top)
     floor = bus_model.bus_floor(lp.v_on, s.source_resistance, top + i_conv)
-    exact = (drive.hold.mode == "voltage" and drive.hold.regulation != "closed_loop"
-             and not through_clamp(drive))
-    if not exact:
+    ind, r_e = lp.inductance, None
+    if isinstance(ind, EddyCoil):
+        ind, r_e = ind.magnetising, ind.resistance
+    if not pwm or through_clamp(drive) or isinstance(ind, FluxCoil):
         return np.minimum(floor, lp.v_on), t_hand, i_hand, HANDOVER_FLOOR
     b = bus_model.bus(lp.v_on - s.source_resistance * i_conv, s.source_resistance, s.capacitance,
-                      lp.r_on, lp.inductance)
-    v_low, when, settled = bus_model.hold_from(b, i_hand, lp.v_on, duty, res.hold.period, lp.r_off, lp.v_off)
-    # where the orbit has not repeated within the run, the floor bounds the rest
-    tail = ~settled & (floor < v_low)
+                      lp.r_on, ind, r_e)
+    v_low, when, settled = bus_model.hold_from(b, np.where(known, i_m, 0.0), lp.v_on, duty, res.hold.period,
+                                               lp.r_off, lp.v_off)
+    # where the orbit has not repeated within the run (or the hand-over's state is not
+    # known), the floor bounds the rest
+    tail = ~known | (~settled & (floor < v_low))
     return np.where(tail, floor, v_low), t_hand + np.where(tail, 0.0, when), i_hand, HANDOVER_PWM
 
 

@@ -66,7 +66,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import linear2
+from . import eddy, linear2
 from .rl import decay_current
 
 #: Bisection steps for the rise time: the bracket shrinks 2^-60, far below a tick.
@@ -365,8 +365,14 @@ def hold_from(b: Bus, i0, v0, duty, period, r_off, v_off) -> tuple[np.ndarray, n
     e^{-t/(R_s C)}`` (its lowest is the off-time's start). Periods follow one another until
     a period moves the state at its start by less than :data:`HOLD_SETTLED` (relative; the
     orbit repeats, so no later period goes lower) or :data:`HOLD_PERIODS_MAX`; ``settled``
-    says which. ``when`` counts from the hand-over. A plain coil (no eddy term). Every
-    argument broadcasts over the points of ``b``."""
+    says which. ``when`` counts from the hand-over. With an eddy term (``b.g_e`` > 0) ``i0``
+    is the magnetising current and the on-times are the module docstring's eddy circuit
+    (the terminal current steps to ``k (i_m + v/R_e)`` at each switch-on, so the bus
+    starts falling at once; :func:`lowest_from` takes the zero of ``dv/dt`` wherever it
+    lies); in the off-times the magnetising current freewheels through the loop's Thevenin
+    pair and, once the terminal current is zero, through ``R_e`` alone
+    (:func:`coildrive.model.eddy.decay_current`), still drawing nothing from the bus.
+    Every argument broadcasts over the points of ``b``."""
     shape = np.broadcast_shapes(b.i_ss.shape, *(np.shape(x) for x in (i0, v0, duty, period, r_off, v_off)))
 
     def flat(x):
@@ -390,10 +396,22 @@ def hold_from(b: Bus, i0, v0, duty, period, r_off, v_off) -> tuple[np.ndarray, n
         low[k] = np.where(lower, v_low, low[k])
         when[k] = np.where(lower, n * per[k] + t_low, when[k])
         i_on, v_on = state_from(t_on[k], sub, i[k], v[k])
-        i_next = decay_current(t_off[k], i_on, r_off[k], v_off[k], sub.l)
+        i_next = _off_current(t_off[k], i_on, r_off[k], v_off[k], sub)
         v_next = sub.v_s + (v_on - sub.v_s) * recover[k]
         still = ((np.abs(i_next - i[k]) > HOLD_SETTLED * np.maximum(np.abs(i[k]), 1e-6))
                  | (np.abs(v_next - v[k]) > HOLD_SETTLED * np.abs(v[k])))
         i[k], v[k] = i_next, v_next
         live[k] = still
     return low.reshape(shape), when.reshape(shape), ~live.reshape(shape)
+
+
+def _off_current(t, i0, r_off, v_off, b: Bus) -> np.ndarray:
+    """The (magnetising) current (A) after ``t`` s of a hold's off-time from ``i0`` A: the
+    plain coil's RL decay (held at zero), or where ``b`` has an eddy term the magnetising
+    branch's (:func:`coildrive.model.eddy.decay_current`)."""
+    plain = decay_current(t, i0, r_off, v_off, b.l)
+    eddy_on = b.g_e > 0
+    if not np.any(eddy_on):
+        return plain
+    r_e = 1.0 / np.where(eddy_on, b.g_e, 1.0)
+    return np.where(eddy_on, eddy.decay_current(t, i0, r_off, v_off, eddy.EddyCoil(b.l, r_e)), plain)
