@@ -243,17 +243,21 @@ def test_a_run_that_has_not_settled_takes_the_floor(tmp_path, monkeypatch):
 
 
 @pytest.mark.compiler
-def test_a_passing_drooping_drive_runs_in_the_loop(tmp_path):
+@pytest.mark.parametrize("eddy", [False, True], ids=["plain", "eddy"])
+def test_a_passing_drooping_drive_runs_in_the_loop(tmp_path, eddy):
     """Plumbing (the emulator and the driver share the design's physics): with a 2 mohm
     source the lowest bus after the hand-over still reads the supply-min code, so the
     design passes; its emulated capture passes check, and the reference driver that
-    ``firmware-driver`` writes builds (gcc, strict) and ends the peak at the threshold."""
+    ``firmware-driver`` writes builds (gcc, strict) and ends the peak at the threshold.
+    With an eddy term too (an invented 1 kohm: the example's over-current code still
+    reaches the terminal current's step)."""
     from test_boost_high_side import driver_runs_to_threshold, emulated_check_passes
 
     from coildrive.config import load_drive
     from coildrive.design import design
 
-    path = _droop(tmp_path, "stiffer", ('source_resistance = "0.05 ohm"', 'source_resistance = "2 mohm"'))
+    more = [('inductance = "6 mH"', 'inductance = "6 mH"\neddy_resistance = "1 kohm"')] if eddy else []
+    path = _droop(tmp_path, "stiffer", ('source_resistance = "0.05 ohm"', 'source_resistance = "2 mohm"'), *more)
     d = design(load_drive(path))
     assert d.ok and {c.name: c for c in d.checks}["supply_droop"].ok
     emulated_check_passes(tmp_path, path)
