@@ -118,11 +118,12 @@ def _pwm_hold(drive: Drive) -> bool:
 
 
 def _first_on_top(drive: Drive, lp, i_m, duty, period) -> np.ndarray:
-    """The most current (A, terminal) the main bus gives the coil in a fixed-duty hold's
-    first on-time from the magnetising current ``i_m`` A at the hand-over, taken on a stiff
-    bus at ``V_s`` (:func:`coildrive.model.rl.rise_current`: a linear coil, a curve, an
-    eddy term's branch; the terminal current ``(V_s + R_e i_m)/(R + R_e)`` at either end
-    with an eddy term). Why it bounds every later draw too: the flux obeys ``dpsi/dt = v_th
+    """The most current (A) the main bus gives the coil in a fixed-duty hold's first
+    on-time from the magnetising current ``i_m`` A at the hand-over, taken on a stiff bus
+    at ``V_s`` (:func:`coildrive.model.rl.rise_current`: a linear coil, a curve, an eddy
+    term's branch; with an eddy term the larger of the terminal current ``(V_s + R_e
+    i_m)/(R + R_e)`` at either end and the magnetising current, which bounds what a
+    clamp's off-times draw, ``R_e i_m/(R_off + R_e)``). Why it bounds every later draw too: the flux obeys ``dpsi/dt = v_th
     - R_th i_m`` with the bus at or below ``V_s`` (the main diode blocks it from rising
     above), so the current on the drooping bus never exceeds the stiff bus's under the
     same switching (a one-state flow keeps its order; the off-times are the same flow on
@@ -134,8 +135,8 @@ def _first_on_top(drive: Drive, lp, i_m, duty, period) -> np.ndarray:
     t_on = np.clip(np.nan_to_num(np.asarray(duty, float)), 0.0, 1.0) * np.asarray(period, float)
     end = rl.rise_current(t_on, i_m, lp.v_on, lp.r_on, ind)
     top = np.maximum(end, i_m)
-    if isinstance(ind, EddyCoil):
-        return eddy_terminal(top, lp.v_on, lp.r_on, ind.resistance)
+    if isinstance(ind, EddyCoil):     # (a clamp's off-times draw at most the magnetising current)
+        return np.maximum(eddy_terminal(top, lp.v_on, lp.r_on, ind.resistance), top)
     return top
 
 
@@ -169,7 +170,9 @@ def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.nd
     t_hand, i_hand = boost.handover(drive, lp)
     i_m, known = boost.handover_magnetising(drive, lp, t_hand)
     top = getattr(res.hold, "terminal_max", None)
-    top = np.maximum(i_hand, res.hold.i_max if top is None else top)
+    # (with an eddy term both tops: the on-times draw the terminal current, a clamp's
+    # off-times at most the magnetising current, R_e i_m/(R_off + R_e))
+    top = np.maximum(i_hand, res.hold.i_max if top is None else np.maximum(top, res.hold.i_max))
     top = np.where(np.isfinite(top), top, i_hand)
     pwm = _pwm_hold(drive)
     if pwm:
