@@ -89,11 +89,16 @@ def steady_current(drive: Drive, lp) -> np.ndarray:
 HANDOVER_PWM = ("the hold's PWM from the hand-over on the drooping bus, exact period by period "
                 "until its orbit repeats (each on-time the bus and coil circuit in closed form; "
                 "where it has not within 5000 periods, the floor below)")
-#: ... where the hold's switching is not a fixed PWM, a clamp draws in its off-times, or the
-#: coil saturates (a flux-linkage curve: no closed form for an on-time on the bus).
+#: ... where the hold's switching is not a fixed PWM, or a clamp draws in its off-times.
 HANDOVER_FLOOR = ("a floor: the source through R_s carries every draw from the hand-over on "
                   "(the coil at most the largest of the hand-over current, its first on-time "
                   "from there on a stiff bus and the hold's top; the boost converter)")
+#: ... where the coil saturates (a flux-linkage curve: no closed form for an on-time on the
+#: bus) under a fixed-duty hold that draws in its on-times only.
+HANDOVER_PULSES = ("a floor: the bus driven from the hand-over on by the coil's most current in "
+                   "every on-time (the largest of the hand-over current, its first on-time from "
+                   "there on a stiff bus and the hold's top) and the boost converter's, through "
+                   "R_s and C in closed form (the periodic response of an RC to a rectangular train)")
 
 
 def converter_current(drive: Drive, v_s, i_top) -> np.ndarray:
@@ -158,13 +163,16 @@ def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.nd
     (:func:`coildrive.model.supply.hold_from`; where its orbit has not repeated within
     :data:`~coildrive.model.supply.HOLD_PERIODS_MAX` periods, the floor below). A
     current-mode or a closed-loop hold (its switching follows the current, not a fixed
-    duty), a clamp across the switch (its off-times, or with split decay its release, draw
-    from the bus too) and a flux-linkage curve (an on-time on the bus has no closed form:
-    stepping thousands of them is the cost the floor avoids) take the floor of the bus
-    instead (:func:`coildrive.model.supply.bus_floor` with the coil at most the largest of
-    the hand-over current, the hold's top and -- under a fixed duty -- the first on-time
-    from the hand-over, :func:`_first_on_top`; plus the converter): a bound, lower than the
-    bus goes."""
+    duty) and a clamp across the switch (its off-times, or with split decay its release,
+    draw from the bus too) take the floor of the bus instead
+    (:func:`coildrive.model.supply.bus_floor` with the coil at most the largest of the
+    hand-over current, the hold's top and -- under a fixed duty -- the first on-time from
+    the hand-over, :func:`_first_on_top`; plus the converter): a bound, lower than the bus
+    goes. A flux-linkage curve under a fixed duty (an on-time on the bus has no closed
+    form: stepping the thousands of them to the orbit is the cost this avoids) takes the
+    tighter floor of that most current drawn in the on-times only
+    (:func:`coildrive.model.supply.pulse_floor`, the converter's constant draw lowering its
+    source)."""
     s = drive.supply
     lp = res.loop
     t_hand, i_hand = boost.handover(drive, lp)
@@ -182,8 +190,12 @@ def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.nd
     ind, r_e = lp.inductance, None
     if isinstance(ind, EddyCoil):
         ind, r_e = ind.magnetising, ind.resistance
-    if not pwm or through_clamp(drive) or isinstance(ind, FluxCoil):
+    if not pwm or through_clamp(drive):
         return np.minimum(floor, lp.v_on), t_hand, i_hand, HANDOVER_FLOOR
+    if isinstance(ind, FluxCoil):
+        v_low = bus_model.pulse_floor(lp.v_on - s.source_resistance * i_conv, s.source_resistance,
+                                      s.capacitance, top, duty, res.hold.period)
+        return np.minimum(v_low, lp.v_on), t_hand, i_hand, HANDOVER_PULSES
     b = bus_model.bus(lp.v_on - s.source_resistance * i_conv, s.source_resistance, s.capacitance,
                       lp.r_on, ind, r_e)
     v_low, when, settled = bus_model.hold_from(b, np.where(known, i_m, 0.0), lp.v_on, duty, res.hold.period,

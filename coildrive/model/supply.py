@@ -222,6 +222,22 @@ def bus_floor(v_s, r_s, i_top) -> np.ndarray:
     return np.asarray(v_s, float) - np.asarray(r_s, float) * np.asarray(i_top, float)
 
 
+def pulse_floor(v_s, r_s, c, i_top, duty, period) -> np.ndarray:
+    """A floor (V) under the bus from a moment it sits at ``v_s`` V while the coil draws at
+    most ``i_top`` A in each on-time (``duty`` of each ``period`` s, an on-time first) and
+    nothing in the off-times: the bus is linear in what it gives, so it stays above the bus
+    driven by exactly that rectangular train -- an RC circuit (``tau = R_s C``) whose
+    shortfall ``u = V_s - v`` rises in each on-time to ``a u + R_s i_top (1 - a)`` (``a =
+    e^{-t_on/tau}``) and decays in each off-time, so its values at the ends of the on-times
+    climb monotonically to the periodic response's ``R_s i_top (1 - a) / (1 - e^{-T/tau})``,
+    the floor. ``duty`` 1: :func:`bus_floor`'s ``V_s - R_s i_top``."""
+    r_s, c = np.asarray(r_s, float), np.asarray(c, float)
+    d = np.clip(np.nan_to_num(np.asarray(duty, float)), 0.0, 1.0)
+    t = np.asarray(period, float) / (r_s * c)
+    share = np.where(d >= 1.0, 1.0, np.expm1(-d * t) / np.expm1(-np.where(d > 0, t, 1.0)))
+    return np.asarray(v_s, float) - r_s * np.asarray(i_top, float) * np.where(d > 0, share, 0.0)
+
+
 def state_from(t, b: Bus, i0, v0) -> tuple[np.ndarray, np.ndarray]:
     """``(i A, v V)`` at ``t`` s after a moment at which the coil carries ``i0`` A and the
     bus is at ``v0`` V, the switch on throughout (the same circuit from any start:
