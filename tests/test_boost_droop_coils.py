@@ -14,6 +14,8 @@ from it too (coildrive/design/supply.py ``handover_bus``). References:
   integrates the coil voltage into the flux, a ``pwl`` table gives the current back),
   over the transient onto the hold's orbit: the bus never below the design's floor and
   the coil current never above the top it is built on.
+* scipy's ``solve_ivp`` (Radau) on a curve with an eddy term written afresh, the curve by
+  scipy's own ``PchipInterpolator``: the same bound and top over the transient.
 * The boosted peak itself with either coil is checked against ngspice in
   tests/test_boost_eddy.py and tests/test_boost_flux.py; the eddy term's period-by-period
   hold against scipy's ``solve_ivp`` in tests/test_boost_droop.py.
@@ -201,3 +203,70 @@ def test_design_takes_the_hand_over(tmp_path, coil, method):
         # the on-times' floor: below the converter's drop alone, above the plain floor at
         # twice the hand-over current (the top is a hair above it at most)
         assert 9.0 - R_S * (2 * top + i_conv) <= s["lowest_bus_v"] < 9.0 - R_S * i_conv
+
+
+def test_curve_with_eddy_term_floor_against_scipy():
+    """A curve with an eddy term (no ngspice deck of that pair here): scipy's ``solve_ivp``
+    (Radau) on the equations written afresh, period by period over six small-signal time
+    constants from a hand-over below ``V/R`` (so the first on-time rises past it) --
+    ``L_d(i_m) di_m/dt = v_m`` with the curve by scipy's own ``PchipInterpolator``; on,
+    ``v = R (i_m + v_m/R_e) + v_m``; off, ``0 = R_off i + V_off + v_m`` while the terminal
+    current ``i = i_m + v_m/R_e`` flows, else ``v_m = -R_e i_m``; the bus ``C dv/dt = (V_s -
+    v)/R_s - i - I_conv`` (``i`` 0 while off). The bus never below the floor
+    (:func:`coildrive.model.supply.pulse_floor` at the most current: the first on-time's and
+    the orbit's, :func:`coildrive.model.eddy.orbit`, terminal and magnetising) and the
+    terminal current never above that top."""
+    from scipy.integrate import solve_ivp
+    from scipy.interpolate import PchipInterpolator
+    from test_boost_flux import CURVE_I, CURVE_PSI
+
+    from coildrive.model import eddy, rl
+    from coildrive.model.flux import FluxCoil, FluxCurve
+    from coildrive.model.supply import pulse_floor
+
+    v_s, r, r_off, v_off, r_e, i_conv, r_s, c = 9.0, 4.0, 3.9, 0.8, 150.0, 0.5, 0.05, 470e-6
+    duty, period, i0 = 0.5, 1.0 / 20e3, 2.0
+    t_on, t_off = duty * period, (1.0 - duty) * period
+    e = eddy.EddyCoil(FluxCoil(FluxCurve(CURVE_I, CURVE_PSI), np.asarray(1.0)), np.asarray(r_e))
+    first = max(i0, float(rl.rise_current(t_on, i0, v_s, r, e)))
+    orb = eddy.orbit(e, t_on, t_off, v_s, r, r_off, v_off)
+    top = max(first, float(eddy.terminal(first, v_s, r, r_e)), float(orb.i_max), float(orb.terminal_max))
+    floor = float(pulse_floor(v_s - r_s * i_conv, r_s, c, top, duty, period))
+    assert float(rl.rise_current(t_on, i0, v_s, r, e)) > i0        # the first on-time rises
+
+    ld = PchipInterpolator(CURVE_I, CURVE_PSI).derivative()
+
+    def on(t, y):            # y = (i_m, v)
+        v_m = (y[1] - r * y[0]) * r_e / (r + r_e)
+        return [v_m / float(ld(y[0])), ((v_s - y[1]) / r_s - (y[0] + v_m / r_e) - i_conv) / c]
+
+    def off(t, y, blocked):
+        v_m = -r_e * y[0] if blocked else -(r_off * y[0] + v_off) * r_e / (r_off + r_e)
+        return [v_m / float(ld(y[0])), ((v_s - y[1]) / r_s - i_conv) / c]
+
+    def zero(t, y, blocked):  # the terminal current (R_e i_m - V_off)/(R_off + R_e) reaches zero
+        return y[0] - v_off / r_e
+    zero.terminal, zero.direction = True, -1
+    y, low, most = np.array([i0, v_s]), v_s, 0.0
+    periods = int(6 * float(ld(0.0)) / r / period)
+    for n in range(periods):
+        t0 = n * period
+        s = solve_ivp(on, (t0, t0 + t_on), y, method="Radau", rtol=1e-9, atol=1e-12, dense_output=True)
+        ts = np.linspace(t0, t0 + t_on, 41)
+        i_m, v = s.sol(ts)
+        v_m = (v - r * i_m) * r_e / (r + r_e)
+        low, most = min(low, float(v.min())), max(most, float((i_m + v_m / r_e).max()))
+        y, t1 = s.y[:, -1], t0 + t_on
+        i_top = y[0]
+        if y[0] > v_off / r_e:
+            s = solve_ivp(off, (t1, t0 + period), y, method="Radau", rtol=1e-9, atol=1e-12, events=zero,
+                          args=(False,))
+            y, t1 = s.y[:, -1], s.t[-1]
+        if t1 < t0 + period:
+            y = solve_ivp(off, (t1, t0 + period), y, method="Radau", rtol=1e-9, atol=1e-12, args=(True,)).y[:, -1]
+    # scipy: onto the orbit (its top within 1 %), never above the top, never below the floor
+    assert most <= top * (1 + 1e-6), (most, top)
+    assert low >= floor - 1e-9, (low, floor)
+    assert i_top == pytest.approx(float(orb.i_max), rel=0.01)
+    # ... and close: the floor's droop within 1.1x scipy's
+    assert v_s - floor <= 1.1 * (v_s - low), (low, floor)
