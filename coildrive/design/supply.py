@@ -137,7 +137,7 @@ def _first_on_top(drive: Drive, lp, i_m, duty, period) -> np.ndarray:
     its start) lies below the first one's or the orbit's (:func:`handover_bus` takes the
     hold's top too)."""
     ind = lp.inductance
-    t_on = np.clip(np.nan_to_num(np.asarray(duty, float)), 0.0, 1.0) * np.asarray(period, float)
+    t_on = np.clip(np.nan_to_num(np.asarray(duty, float), nan=1.0), 0.0, 1.0) * np.asarray(period, float)
     end = rl.rise_current(t_on, i_m, lp.v_on, lp.r_on, ind)
     top = np.maximum(end, i_m)
     if isinstance(ind, EddyCoil):     # (a clamp's off-times draw at most the magnetising current)

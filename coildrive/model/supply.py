@@ -230,9 +230,9 @@ def pulse_floor(v_s, r_s, c, i_top, duty, period) -> np.ndarray:
     shortfall ``u = V_s - v`` rises in each on-time to ``a u + R_s i_top (1 - a)`` (``a =
     e^{-t_on/tau}``) and decays in each off-time, so its values at the ends of the on-times
     climb monotonically to the periodic response's ``R_s i_top (1 - a) / (1 - e^{-T/tau})``,
-    the floor. ``duty`` 1: :func:`bus_floor`'s ``V_s - R_s i_top``."""
+    the floor. ``duty`` 1 (or not known, NaN): :func:`bus_floor`'s ``V_s - R_s i_top``."""
     r_s, c = np.asarray(r_s, float), np.asarray(c, float)
-    d = np.clip(np.nan_to_num(np.asarray(duty, float)), 0.0, 1.0)
+    d = np.clip(np.nan_to_num(np.asarray(duty, float), nan=1.0), 0.0, 1.0)
     t = np.asarray(period, float) / (r_s * c)
     share = np.where(d >= 1.0, 1.0, np.expm1(-d * t) / np.expm1(-np.where(d > 0, t, 1.0)))
     return np.asarray(v_s, float) - r_s * np.asarray(i_top, float) * np.where(d > 0, share, 0.0)
