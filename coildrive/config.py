@@ -1488,8 +1488,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     release into the main bus: :func:`_check_bridge` says what a bridge takes), a
     diode/zener/resistor freewheel (split decay too) or a clamp across a low-side or a
     high-side switch, a stiff or a drooping main supply (the main bus feeds the hold from
-    the hand-over: :func:`coildrive.design.supply.handover_bus`; not with an eddy term or a
-    full bridge), a PWM
+    the hand-over: :func:`coildrive.design.supply.handover_bus`; on a full bridge every
+    turn-off's fast decay returns into it, the boost converter idle or drawing:
+    :mod:`coildrive.design.bridge_bus`; not with a flux-linkage curve or an eddy term), a PWM
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
     mode), a peak that ends at its threshold. A moving armature
     (:mod:`coildrive.model.armature_boost`): a linear coil (an eddy term too), a
@@ -1515,9 +1516,6 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     elif supply.droops and coil.eddy_resistance:
         key, why = "supply.source_resistance", ("a drooping main supply and an eddy-current term together "
                                                 "(the hold's hand-over onto the bus is a plain coil's)")
-    elif supply.droops and switch.topology == "full_bridge":
-        key, why = "supply.source_resistance", ("a drooping main supply on a full bridge (its release "
-                                                "into the drooping bus after a boost is not modelled)")
     elif hold.mode == "latch":
         key, why = "hold.mode", ("a latching coil (set and reset pulses from the boost would each end at a "
                                  "current threshold of their own, with the boost switch in the latch "
@@ -1545,7 +1543,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "high-side switch or a "
                          "full bridge, a "
                          "diode/zener/resistor freewheel (split decay too) or a clamp, a stiff "
-                         "main supply (or a drooping one: a linear coil on one switch, no [armature]), a "
+                         "main supply (or a drooping one: a linear coil, no [armature]), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
                          "with [armature]: no restitution, no mixed decay, no [duty] with an eddy term")
 

@@ -142,11 +142,11 @@ def test_design_takes_the_hand_over(tmp_path):
 
 @pytest.mark.parametrize("name,change,board,word", [
     ("eddy", ('inductance = "6 mH"', 'inductance = "6 mH"\neddy_resistance = "200 ohm"'), None, "eddy"),
-    ("bridge", ('type = "diode"', 'type = "diode"'), "bridge-m32-fast", "full bridge"),
 ])
 def test_still_refused(tmp_path, name, change, board, word):
-    """A drooping main supply with a boost and an eddy term, or on a full bridge, is refused
-    in one line naming ``supply.source_resistance``."""
+    """A drooping main supply with a boost and an eddy term is refused in one line naming
+    ``supply.source_resistance`` (on a full bridge it is designed:
+    tests/test_boost_bridge_droop.py)."""
     path = _droop(tmp_path, name, change)
     if board:
         path.write_text(path.read_text().replace("lab-m32-zener", board))
