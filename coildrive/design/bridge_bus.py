@@ -4,7 +4,9 @@ the bus rises above the source while the release starts from a bus that may sit 
 (:mod:`coildrive.model.bus_decay`, closed form, with an eddy term too; a supply that
 cannot sink blocks at the source's voltage and the rest charges the capacitor alone; a
 flux-linkage curve's, with or without an eddy term, :mod:`coildrive.model.flux_bus_decay`,
-stepped)."""
+stepped). After a boosted peak the main bus sits at the source through the peak and feeds
+the hold and the boost converter from the hand-over: the release takes the converter idle
+and drawing its most (:func:`coildrive.model.bus_decay.decay_drawn`)."""
 
 from __future__ import annotations
 
