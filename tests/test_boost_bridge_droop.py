@@ -230,14 +230,24 @@ def test_the_converter_drawing_slows_the_release(tmp_path, monkeypatch):
     assert both.time_s > idle.time_s and both.zero_time_s > idle.zero_time_s
 
 
-def test_mixed_decay_still_refused(tmp_path):
-    """A full bridge's mixed-decay hold on the drooping bus stays refused in one line
-    naming ``hold.fast_fraction`` (each off-time's fast part returns into the bus)."""
-    path = _drooping(tmp_path)
-    path.write_text(path.read_text().replace("[hold]", "[hold]\nfast_fraction = 0.3", 1))
-    out = run_cli("design", str(path))
-    assert out.returncode == 2 and "hold.fast_fraction" in out.stderr and "drooping" in out.stderr, out.stderr
-    assert len(out.stderr.strip().splitlines()) == 1
+def test_mixed_decay_after_the_boost(tmp_path):
+    """A mixed-decay hold after the boost: on a supply that sinks it designs, the lowest bus
+    after the hand-over then the floor (the hold's exact run has no fast parts; they only
+    lift the bus); on one that cannot sink it stays refused in one line naming
+    ``hold.fast_fraction``."""
+    from coildrive.config import load_drive
+    from coildrive.design import design
+
+    for sink in (True, False):
+        path = _drooping(tmp_path, sink=sink, name=f"mixed{sink}")
+        path.write_text(path.read_text().replace("[hold]", "[hold]\nfast_fraction = 0.3", 1))
+        if sink:
+            s = design(load_drive(path)).supply
+            assert s.lowest_bus_method.startswith("a floor") and s.highest_bus_v > 16.0
+            continue
+        out = run_cli("design", str(path))
+        assert out.returncode == 2 and "hold.fast_fraction" in out.stderr and "cannot sink" in out.stderr, out.stderr
+        assert len(out.stderr.strip().splitlines()) == 1
 
 
 def test_a_passing_drooping_drive_simulates_and_runs_in_the_virtual_device(tmp_path):

@@ -65,20 +65,31 @@ def bus_range(drive: Drive, res, peak_time, peak_end) -> tuple[np.ndarray, np.nd
     V_d``. After a boosted peak the main bus carries nothing in the peak (its diode blocks:
     it sits at ``V_s`` until the hand-over) and from the hand-over on the floor takes the
     converter's draw too (:func:`converter_draw`): the floor of
-    :func:`coildrive.design.supply.handover_bus`."""
+    :func:`coildrive.design.supply.handover_bus`. A mixed-decay hold (on a supply that
+    sinks) returns current into the bus in every off-time's fast part, so the bus may sit
+    above the source by up to :func:`coildrive.model.bus_decay.mixed_hold_rise` (the
+    coil's current at most :func:`_top`): the highest starting bus."""
+    s = drive.supply
     lp = res.loop
     top = _top(drive, res, peak_end)
-    if drive.supply.boosted:
+    draw = top
+    if s.boosted:
         v_peak = np.asarray(lp.v_on, float)
         i_conv = converter_draw(drive, res, peak_end)
-        top = top if i_conv is None else top + i_conv
+        draw = top if i_conv is None else top + i_conv
     else:
         b = bus_at(drive, lp, lp.inductance)
         v_peak, _ = model_of(b).lowest_bus(np.broadcast_to(peak_time, lp.v_on.shape), b)
-    floor = bus_floor(lp.v_on, drive.supply.source_resistance, top)
+    floor = bus_floor(lp.v_on, s.source_resistance, draw)
     # never below -2 V_d: the bridge's own body diodes (Q2 then Q1) clamp the bus there
     clamp = -2.0 * np.asarray(release_loop(res).diode(drive), float)
-    return np.maximum(np.minimum(v_peak, floor), clamp), np.asarray(lp.v_on, float)
+    high = np.asarray(lp.v_on, float)
+    if lp.mixed is not None:   # (a supply that sinks: config)
+        # every fast part of the hold returns current: the bus may sit above the source
+        period = np.asarray(res.hold.period, float)
+        high = high + bus_decay.mixed_hold_rise(s.source_resistance, s.capacitance, top,
+                                                lp.mixed.fraction * period, period)
+    return np.maximum(np.minimum(v_peak, floor), clamp), high
 
 
 def drooped(drive: Drive) -> bool:

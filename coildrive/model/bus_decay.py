@@ -389,3 +389,19 @@ def decay_drawn(i0, v0, i_drop, v_s, i_c, r_s, c, r, l, v_d, sink: bool = True) 
     charge = np.where(blocked, q_a + q_b + np.where(back, fed_c.charge, 0.0), fed.charge)
     return FastDecay(t_drop, t_zero, bus_top, np.maximum(bus_top, v_fed),
                      np.where(bus_top > v_fed, when, np.inf), v_end, charge)
+
+
+def mixed_hold_rise(r_s, c, i_top, t_fast, period) -> np.ndarray:
+    """A bound (V) on how far a full bridge's mixed-decay hold lifts a bus that sinks above
+    its source: with ``u = v - V_s``, ``C du/dt = -u/R_s + j``, where ``j``, the coil's
+    current into the bus, is at most ``i_top`` A in each off-time's fast part (at most
+    ``t_fast`` s once every ``period`` s) and at most 0 otherwise (an on-time draws, a slow
+    part neither draws nor returns; after a boosted peak its converter draws too). By
+    comparison ``u`` stays below the same equation driven by ``i_top`` through every fast
+    part, from ``u <= 0`` when the hold starts: below that rectangular train's periodic
+    orbit, whose top (at the end of a pulse) is ``R_s i_top (1 - e^{-t_fast/tau}) / (1 -
+    e^{-period/tau})``, ``tau = R_s C`` (``R_s`` ohm, ``C`` F; towards ``R_s i_top t_fast /
+    period`` for a bus slow against the period, ``R_s i_top`` for a fast one)."""
+    r_s, c, i_top, t_fast, period = (np.asarray(x, float) for x in (r_s, c, i_top, t_fast, period))
+    tau = r_s * c
+    return r_s * i_top * np.expm1(-t_fast / tau) / np.expm1(-period / tau)
