@@ -32,7 +32,10 @@ Where the extremes are, exactly:
 * The bus rises from ``v0 <= V_s`` to its first maximum at the first zero of ``dv/dt``
   (closed form, :func:`coildrive.model.linear2.first_zero`); later maxima of a damped
   oscillation are lower. Its highest is ``v`` at the earlier of that and the current's
-  zero, or ``V_s`` if higher.
+  zero, or ``V_s`` if higher. A bus that starts above the source by more than ``R_s i0``
+  (a mixed-decay hold's returns, a drain on the bus: :func:`decay_drawn`) falls first, to
+  that first zero of ``dv/dt``: its highest is then the start, or the next turn of a
+  complex pair (``pi/omega`` later) or the current's zero where higher.
 
 **A supply that cannot sink** (``supply.sink = false``: a diode in its feed, taken as
 ideal, one-way, no drop): the source feeds the bus only while ``v < V_s``. From a bus at
@@ -148,9 +151,10 @@ def decay(i0, v0, i_drop, v_s, r_s, c, r, l, v_d) -> FastDecay:
     v_top = at(t_top)[1]
     falling = z[1] < 0.0
     if falling.any():
-        # a bus that starts above the source (a drain on it, :func:`decay_drawn`) first
-        # falls to its minimum (that first zero of dv/dt): its highest is then the start,
-        # the next turn of a complex pair (pi/omega later) or the current's zero
+        # a bus that starts above the source (a drain on it, :func:`decay_drawn`; a
+        # mixed-decay hold's returns, :func:`mixed_hold_rise`) and above it by more than
+        # R_s i0 first falls to its minimum (that first zero of dv/dt): its highest is then
+        # the start, the next turn of a complex pair (pi/omega later) or the current's zero
         w = np.abs(l1.imag)
         with np.errstate(divide="ignore", invalid="ignore"):
             t_next = np.where(w > 0, linear2.first_zero(z[1], zz[1], l1, l2) + np.pi / np.where(w > 0, w, 1.0),
