@@ -211,7 +211,8 @@ def hold_ripple_current(mean, duty, fast=0.0) -> np.ndarray:
     takes ``-I``, ``+I`` and 0 for ``D``, ``F`` and the rest, so about its average ``I (F
     - D)`` the RMS is ``mean * sqrt(D + F - (F - D)^2)``."""
     d, f = np.asarray(duty, float), np.asarray(fast, float)
-    return np.asarray(mean, float) * np.sqrt(np.clip(d + f - (f - d) ** 2, 0.0, None))
+    # D + F - (F - D)^2 written so that F = 0 is D (1 - D) to the bit
+    return np.asarray(mean, float) * np.sqrt(np.clip(d * (1.0 - d) + f * (1.0 - f) + 2.0 * f * d, 0.0, None))
 
 
 def bus_floor(v_s, r_s, i_top) -> np.ndarray:
