@@ -7,9 +7,9 @@ drooping main bus, while the boost converter, fed from that bus, may still be dr
 recharge (:func:`coildrive.model.bus_decay.decay_drawn`). References:
 
 * scipy's ``solve_ivp`` (Radau, rtol 1e-11) on the fast decay's equations written afresh
-  (tests/test_bridge_droop.py's, the converter a constant current off the bus): ``L di/dt = -(R i + v + 2 V_d)``,
-  ``C dv/dt = i - I_c + (V_s - v)/R_s`` (``max(V_s - v, 0)/R_s`` when the supply cannot
-  sink), to the current's zero -- a supply that sinks, and one that cannot through each of
+  (tests/test_bridge_droop.py's, the converter a constant current off the bus): ``L di/dt
+  = -(R i + v + 2 V_d)``, ``C dv/dt = i - I_c + (V_s - v)/R_s`` (``max(V_s - v, 0)/R_s``
+  when the supply cannot sink), to the current's zero -- a supply that sinks, and one that cannot through each of
   its stretches (fed only, fed then blocked to the zero, blocked from the start, blocked
   then fed again, a bus starting above ``V_s - R_s I_c``): the times, the highest bus and
   the charge within 1e-8;
@@ -42,13 +42,13 @@ from test_reference_ngspice_bridge import EDGE, STAGGER
 from coildrive.model import bus_decay
 
 
-def _drooping(tmp_path, r_s="0.05 ohm", c="1 mF", sink=True, name="droop", extra=""):
+def _drooping(tmp_path, r_s="0.05 ohm", c="1 mF", sink=True, name="droop"):
     """The boosted fuel valve on the bridge board (tests/test_boost_bridge.py) on a main
     supply behind ``r_s`` with ``c`` of bulk capacitance, its converter 100 % efficient."""
     path = _variant(tmp_path)
     text = path.read_text().replace('max = "16 V"', f'max = "16 V"\nsource_resistance = "{r_s}"\n'
                                     f'capacitance = "{c}"\nboost_efficiency = 1\n'
-                                    f'sink = {str(sink).lower()}\ncapacitor_voltage = "35 V"' + extra, 1)
+                                    f'sink = {str(sink).lower()}\ncapacitor_voltage = "35 V"', 1)
     out = tmp_path / f"{name}.toml"
     out.write_text(text)
     return out
