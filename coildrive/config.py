@@ -1423,9 +1423,10 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     (a slow-decay hold: voltage mode, fixed or supply table, current mode or the closed
     loop; every turn-off's fast decay into the bus is :mod:`coildrive.model.bus_decay`,
     with a curve :mod:`coildrive.model.flux_bus_decay`, on a supply that cannot sink with
-    the feed blocking, with an eddy term too: :mod:`coildrive.design.bridge_bus`; not its
-    mixed-decay hold, whose every off-time returns current into the bus, nor a latching
-    coil's pulses). Any hold
+    the feed blocking, with an eddy term too: :mod:`coildrive.design.bridge_bus`; its
+    mixed-decay hold, whose every off-time returns current into the bus, on a supply that
+    sinks with a plain linear coil and no armature, the bus's rise bounded by
+    :func:`coildrive.model.bus_decay.mixed_hold_rise`; not a latching coil's pulses). Any hold
     (the droop is the peak's; a regulated hold takes it out of the hold) and any freewheel
     path (a clamp's release, which draws from the bus, is computed on the undrooped bus:
     the safe side). A moving armature: a linear coil or its open and seated curves (an
@@ -1440,9 +1441,12 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     if not supply.droops:
         return
     why = None
-    if switch.topology == "full_bridge" and hold.fast_fraction > 0:
-        key, why = "hold.fast_fraction", ("a full bridge's mixed-decay hold (each off-time's fast part "
-                                          "returns current into the drooping bus)")
+    if switch.topology == "full_bridge" and hold.fast_fraction > 0 and (
+            not supply.sink or coil.flux_current or coil.eddy_resistance or armature is not None):
+        key, why = "hold.fast_fraction", ("a full bridge's mixed-decay hold on a supply that cannot sink "
+                                          "(each off-time's fast part returns current the bus keeps: it "
+                                          "pumps up period after period) or with a flux-linkage curve, an "
+                                          "eddy-current term or an [armature]")
     elif switch.topology == "full_bridge" and hold.mode == "latch":
         key, why = "hold.mode", "a latching coil on a full bridge"
     elif armature is not None and switch.topology == "full_bridge" and (armature.open_current
@@ -1454,7 +1458,8 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
                          f"{why}: expected source_resistance left out, or one switch (a full bridge: "
-                         "a slow-decay peak-and-hold, with an [armature] a linear coil without an eddy term; "
+                         "a slow-decay peak-and-hold or, on a supply that sinks, a linear coil's mixed decay; "
+                         "with an [armature] a linear coil without an eddy term; "
                          "a latching coil: one switch, no [armature])")
 
 
@@ -1489,7 +1494,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     diode/zener/resistor freewheel (split decay too) or a clamp across a low-side or a
     high-side switch, a stiff or a drooping main supply (the main bus feeds the hold from
     the hand-over: :func:`coildrive.design.supply.handover_bus`, a linear coil, a curve or
-    an eddy term; not on a full bridge), a PWM
+    an eddy term; on a full bridge, a linear coil, every turn-off's fast decay returns
+    into it, the boost converter idle or drawing: :mod:`coildrive.design.bridge_bus`), a PWM
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
     mode), a peak that ends at its threshold. A moving armature
     (:mod:`coildrive.model.armature_boost`): a linear coil (an eddy term too), a
@@ -1509,9 +1515,10 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "converter draws boost_power / its efficiency from the main bus, expected it "
                          "(e.g. 0.85)")
     why = None
-    if supply.droops and switch.topology == "full_bridge":
-        key, why = "supply.source_resistance", ("a drooping main supply on a full bridge (its release "
-                                                "into the drooping bus after a boost is not modelled)")
+    if supply.droops and switch.topology == "full_bridge" and (coil.flux_current or coil.eddy_resistance):
+        key, why = "supply.source_resistance", ("a drooping main supply on a full bridge with a flux-linkage "
+                                                "curve or an eddy-current term (the release into the drooping "
+                                                "bus with the converter drawing is a linear coil's)")
     elif hold.mode == "latch":
         key, why = "hold.mode", ("a latching coil (set and reset pulses from the boost would each end at a "
                                  "current threshold of their own, with the boost switch in the latch "
@@ -1539,7 +1546,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "high-side switch or a "
                          "full bridge, a "
                          "diode/zener/resistor freewheel (split decay too) or a clamp, a stiff "
-                         "main supply (or a drooping one: one switch, no [armature]), a "
+                         "main supply (or a drooping one: no [armature]; on a full bridge a linear coil), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
                          "with [armature]: no restitution, no mixed decay, no [duty] with an eddy term")
 

@@ -141,12 +141,14 @@ def test_design_takes_the_hand_over(tmp_path):
 
 
 @pytest.mark.parametrize("name,change,board,word", [
-    # (an eddy term or a curve on the drooping bus: tests/test_boost_droop_coils.py)
-    ("bridge", ('type = "diode"', 'type = "diode"'), "bridge-m32-fast", "full bridge"),
+    # (an eddy term or a curve on one switch: tests/test_boost_droop_coils.py; a linear coil
+    # on a full bridge: tests/test_boost_bridge_droop.py)
+    ("bridge-eddy", ('inductance = "6 mH"', 'inductance = "6 mH"\neddy_resistance = "200 ohm"'), "bridge-m32-fast",
+     "full bridge"),
 ])
 def test_still_refused(tmp_path, name, change, board, word):
-    """A drooping main supply with a boost on a full bridge is refused in one line naming
-    ``supply.source_resistance``."""
+    """A drooping main supply with a boost on a full bridge with an eddy term is refused in
+    one line naming ``supply.source_resistance``."""
     path = _droop(tmp_path, name, change)
     if board:
         path.write_text(path.read_text().replace("lab-m32-zener", board))

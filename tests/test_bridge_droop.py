@@ -93,16 +93,17 @@ def test_bridge_peak_and_release_on_the_drooping_bus_match_ngspice(tmp_path, r_s
         assert float(d.bus_top) + V_D - 0.01 * bound <= res[name] <= bound * 1.001, (name, res[name], bound)
 
 
-def solve_fast_decay(i0, v0, v_s, r, ell, v_d, r_s, c, sink, i_drop, rtol=1e-10, atol=1e-12):
+def solve_fast_decay(i0, v0, v_s, r, ell, v_d, r_s, c, sink, i_drop, rtol=1e-10, atol=1e-12, i_c=0.0):
     """scipy's ``solve_ivp`` (Radau) of the fast decay into the bus, written afresh: ``L
-    di/dt = -(R i + v + 2 V_d)``, ``C dv/dt = i + (V_s - v)/R_s`` (the feed ``max(V_s - v,
-    0)/R_s`` when the supply cannot sink), with the charge ``int i dt``, to the current's
-    zero: ``(drop-out s, zero s, highest bus V -- at least V_s --, charge C)``."""
+    di/dt = -(R i + v + 2 V_d)``, ``C dv/dt = i - I_c + (V_s - v)/R_s`` (the feed ``max(V_s
+    - v, 0)/R_s`` when the supply cannot sink; ``I_c`` A a constant draw off the bus, a
+    boost converter's), with the charge ``int i dt``, to the current's zero: ``(drop-out s,
+    zero s, highest bus V -- at least V_s --, charge C)``."""
     from scipy.integrate import solve_ivp
 
     def f(t, x):
         feed = (v_s - x[1]) / r_s
-        return [-(r * x[0] + x[1] + 2 * v_d) / ell, (x[0] + (feed if sink else max(feed, 0.0))) / c, x[0]]
+        return [-(r * x[0] + x[1] + 2 * v_d) / ell, (x[0] - i_c + (feed if sink else max(feed, 0.0))) / c, x[0]]
 
     def zero(t, x):
         return x[0]

@@ -135,7 +135,8 @@ def test_release_and_buses_match_solve_ivp(tmp_path, hold, sink):
 
 @pytest.mark.parametrize("what", ["mixed", "latch"])
 def test_what_a_bridge_on_the_drooping_bus_still_refuses_is_one_line(tmp_path, what):
-    # mixed decay (every off-time's fast part returns current into the bus) and a latching
+    # mixed decay on a supply that cannot sink (every off-time's fast part returns current
+    # the bus keeps; on one that sinks: tests/test_bridge_mixed_droop.py) and a latching
     # coil's pulses on a bridge: not modelled on the drooping bus, each one line, exit 2
     from conftest import EXAMPLES
 

@@ -4,7 +4,9 @@ the bus rises above the source while the release starts from a bus that may sit 
 (:mod:`coildrive.model.bus_decay`, closed form, with an eddy term too; a supply that
 cannot sink blocks at the source's voltage and the rest charges the capacitor alone; a
 flux-linkage curve's, with or without an eddy term, :mod:`coildrive.model.flux_bus_decay`,
-stepped)."""
+stepped). After a boosted peak the main bus sits at the source through the peak and feeds
+the hold and the boost converter from the hand-over: the release takes the converter idle
+and drawing its most (:func:`coildrive.model.bus_decay.decay_drawn`)."""
 
 from __future__ import annotations
 
@@ -22,7 +24,7 @@ from ..model.flux import FluxCoil
 from ..model.supply import bus_floor
 from .figures import worst
 from .result import Check, ReleaseResult, SupplyResult
-from .supply import bus_at, model_of
+from .supply import bus_at, converter_current, model_of
 from .turnoff import event_currents, release_loop
 
 #: Starting buses tried for a bridge's fast decay, evenly over the range the bus can be in
@@ -30,26 +32,64 @@ from .turnoff import event_currents, release_loop
 BRIDGE_STARTS = bus_decay.STARTS
 
 
-def bus_range(drive: Drive, res, peak_time, peak_end) -> tuple[np.ndarray, np.ndarray]:
-    """``(lowest, highest)`` V the bus can be at when a full bridge turns off, per point: at
-    most the source ``V_s``; at least the lowest bus of the peak (``peak_time`` s) or, once
-    the coil draws no more than the larger of the end of the peak ``peak_end`` A and the
-    hold's top (with an eddy term the terminal current they bound), the floor
-    :func:`~coildrive.model.supply.bus_floor` under it (the slow decay of the hold's
-    off-times draws nothing from the bus); and never below ``-2 V_d``."""
+def _top(drive: Drive, res, peak_end) -> np.ndarray:
+    """The most current (A) the coil draws off the bus after the peak at the points of
+    ``res``: the larger of the end of the peak ``peak_end`` A (a boosted peak's hand-over)
+    and the hold's top (with an eddy term the terminal current they bound)."""
     lp = res.loop
-    b = bus_at(drive, lp, lp.inductance)
-    v_peak, _ = model_of(b).lowest_bus(np.broadcast_to(peak_time, lp.v_on.shape), b)
     end = np.broadcast_to(np.asarray(peak_end, float), lp.v_on.shape)
     top = np.maximum(np.where(np.isfinite(end), end, 0.0),
                      np.where(np.isfinite(res.hold.i_max), res.hold.i_max, 0.0))
     if isinstance(lp.inductance, EddyCoil):
         # the bus feeds the terminal current: at most (V_s + R_e i_m)/(R + R_e) (v <= V_s)
         top = eddy_terminal(top, lp.v_on, lp.r_on, lp.inductance.resistance)
-    floor = bus_floor(lp.v_on, drive.supply.source_resistance, top)
+    return top
+
+
+def converter_draw(drive: Drive, res, peak_end) -> np.ndarray | None:
+    """The most current (A) a boosted peak's converter draws off the drooping main bus from
+    the hand-over on, per point (:func:`coildrive.design.supply.converter_current` with the
+    coil at most :func:`_top`, as :func:`coildrive.design.supply.handover_bus` takes it);
+    ``None`` without a boost converter drawing (no boost, no ``boost_power``)."""
+    if not (drive.supply.boosted and drive.supply.converter_draw > 0):
+        return None
+    return converter_current(drive, res.loop.v_on, _top(drive, res, peak_end))
+
+
+def bus_range(drive: Drive, res, peak_time, peak_end) -> tuple[np.ndarray, np.ndarray]:
+    """``(lowest, highest)`` V the bus can be at when a full bridge turns off, per point: at
+    most the source ``V_s``; at least the lowest bus of the peak (``peak_time`` s) or, once
+    the coil draws no more than :func:`_top` (the larger of the end of the peak ``peak_end``
+    A and the hold's top), the floor :func:`~coildrive.model.supply.bus_floor` under it (the
+    slow decay of the hold's off-times draws nothing from the bus); and never below ``-2
+    V_d``. After a boosted peak the main bus carries nothing in the peak (its diode blocks:
+    it sits at ``V_s`` until the hand-over) and from the hand-over on the floor takes the
+    converter's draw too (:func:`converter_draw`): the floor of
+    :func:`coildrive.design.supply.handover_bus`. A mixed-decay hold (on a supply that
+    sinks) returns current into the bus in every off-time's fast part, so the bus may sit
+    above the source by up to :func:`coildrive.model.bus_decay.mixed_hold_rise` (the
+    coil's current at most :func:`_top`): the highest starting bus."""
+    s = drive.supply
+    lp = res.loop
+    top = _top(drive, res, peak_end)
+    draw = top
+    if s.boosted:
+        v_peak = np.asarray(lp.v_on, float)
+        i_conv = converter_draw(drive, res, peak_end)
+        draw = top if i_conv is None else top + i_conv
+    else:
+        b = bus_at(drive, lp, lp.inductance)
+        v_peak, _ = model_of(b).lowest_bus(np.broadcast_to(peak_time, lp.v_on.shape), b)
+    floor = bus_floor(lp.v_on, s.source_resistance, draw)
     # never below -2 V_d: the bridge's own body diodes (Q2 then Q1) clamp the bus there
     clamp = -2.0 * np.asarray(release_loop(res).diode(drive), float)
-    return np.maximum(np.minimum(v_peak, floor), clamp), np.asarray(lp.v_on, float)
+    high = np.asarray(lp.v_on, float)
+    if lp.mixed is not None:   # (a supply that sinks: config)
+        # every fast part of the hold returns current: the bus may sit above the source
+        period = np.asarray(res.hold.period, float)
+        high = high + bus_decay.mixed_hold_rise(s.source_resistance, s.capacitance, top,
+                                                lp.mixed.fraction * period, period)
+    return np.maximum(np.minimum(v_peak, floor), clamp), high
 
 
 def drooped(drive: Drive) -> bool:
@@ -81,8 +121,15 @@ def decays(drive: Drive, res, i0, peak_time, peak_end) -> list[bus_decay.FastDec
         fast = bus_decay.eddy_decay if s.sink else bus_decay.eddy_decay_no_sink
     else:
         fast = bus_decay.decay if s.sink else bus_decay.decay_no_sink
-    return [fast(i0, v0, drive.release.current, lp.v_on, s.source_resistance,
+    runs = [fast(i0, v0, drive.release.current, lp.v_on, s.source_resistance,
                  s.capacitance, lp.r_off, coil, lp.diode(drive), *eddy.values()) for v0 in starts]
+    i_conv = converter_draw(drive, res, peak_end)
+    if i_conv is not None:   # (a plain linear coil: config refuses the rest after a boost)
+        # the converter may be idle at the turn-off (recharged) or drawing its most: the
+        # state is affine in its current too, so both ends from every starting bus
+        runs += [bus_decay.decay_drawn(i0, v0, drive.release.current, lp.v_on, i_conv, s.source_resistance,
+                                       s.capacitance, lp.r_off, coil, lp.diode(drive), s.sink) for v0 in starts]
+    return runs
 
 
 def release_time(drive: Drive, res, peak_time) -> np.ndarray:

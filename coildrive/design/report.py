@@ -9,7 +9,7 @@ from rich.table import Table
 from ..console import print_cautions, print_verdict
 from ..units import format_si
 from .result import ELEMENT_NAMES, Design
-from .supply import HANDOVER_PWM
+from .supply import CLAMP_RIPPLE_METHOD, HANDOVER_PWM, MIXED_RIPPLE_METHOD
 from .thermal_cycle import duration_text
 
 
@@ -177,6 +177,12 @@ def _boost_rows(d: Design) -> list:
     return rows
 
 
+#: The capacitor ripple's approximation in the table, by ``SupplyResult.ripple_method``.
+_RIPPLE_PLAIN = "mean x sqrt(D(1-D)), coil ripple neglected"
+_RIPPLE_SHORT = {MIXED_RIPPLE_METHOD: "mean x sqrt(D + F - (F-D)^2), F the fast share, coil ripple neglected",
+                 CLAMP_RIPPLE_METHOD: "the coil's ripple / (2 sqrt 3): the clamp draws in the off-times"}
+
+
 def _supply_rows(d: Design) -> list:
     """The drooping bus: lowest bus in the peak, the capacitor's energy and ripple current."""
     s = d.supply
@@ -196,7 +202,7 @@ def _supply_rows(d: Design) -> list:
         (f"capacitor energy {phase}", f"{s.capacitor_energy_j * 1e3:.4g} mJ",
          f"down to the lowest bus, at {s.capacitor_energy_corner}"),
         ("capacitor ripple in the hold", f"{s.ripple_current_a * 1e3:.4g} mA rms",
-         f"at {s.ripple_corner} (mean x sqrt(D(1-D)), coil ripple neglected); the hold's bus "
+         f"at {s.ripple_corner} ({_RIPPLE_SHORT.get(s.ripple_method, _RIPPLE_PLAIN)}); the hold's bus "
          f"sits up to {s.hold_droop_v * 1e3:.4g} mV low"),
     ] + ([] if s.highest_bus_v is None else [
         ("highest bus at a turn-off", f"{s.highest_bus_v:.4g} V",

@@ -25,6 +25,10 @@ from .result import Check, SupplyResult
 #: How the hold's capacitor ripple current is approximated (shown in the JSON and docs).
 RIPPLE_METHOD = ("coil current flat at its hold mean while on; the source gives the average, "
                  "the capacitor the rest: mean x sqrt(D (1 - D))")
+#: ... and with a full bridge's mixed decay, whose fast parts return the coil current.
+MIXED_RIPPLE_METHOD = ("coil current flat at its hold mean, drawn while on and returned in each "
+                       "off-time's fast part; the source gives the average, the capacitor the rest: "
+                       "mean x sqrt(D + F - (F - D)^2), F = fast_fraction x (1 - D)")
 #: ... and with a clamp across the switch, whose off-times draw from the bus too.
 CLAMP_RIPPLE_METHOD = ("the bus draws the coil current on and off (switch, then clamp); the source "
                        "gives the average, the capacitor the coil's ripple: ripple / (2 sqrt 3)")
@@ -163,8 +167,9 @@ def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.nd
     (:func:`coildrive.model.supply.hold_from`; where its orbit has not repeated within
     :data:`~coildrive.model.supply.HOLD_PERIODS_MAX` periods, the floor below). A
     current-mode or a closed-loop hold (its switching follows the current, not a fixed
-    duty) and a clamp across the switch (its off-times, or with split decay its release,
-    draw from the bus too) take the floor of the bus instead
+    duty), a clamp across the switch (its off-times, or with split decay its release,
+    draw from the bus too) and a full bridge's mixed decay (its fast parts return current:
+    the bus only higher) take the floor of the bus instead
     (:func:`coildrive.model.supply.bus_floor` with the coil at most the largest of the
     hand-over current, the hold's top and -- under a fixed duty -- the first on-time from
     the hand-over, :func:`_first_on_top`; plus the converter): a bound, lower than the bus
@@ -190,7 +195,7 @@ def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.nd
     ind, r_e = lp.inductance, None
     if isinstance(ind, EddyCoil):
         ind, r_e = ind.magnetising, ind.resistance
-    if not pwm or through_clamp(drive):
+    if not pwm or through_clamp(drive) or lp.mixed is not None:
         return np.minimum(floor, lp.v_on), t_hand, i_hand, HANDOVER_FLOOR
     if isinstance(ind, FluxCoil):
         v_low = bus_model.pulse_floor(lp.v_on - s.source_resistance * i_conv, s.source_resistance,
@@ -258,13 +263,17 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
     k_e = int(np.argmax(energy))
     on_share = np.broadcast_to(duty, lp.v_on.shape)
     off_draws = clamp and not split_decay(drive)   # the hold's off-times through the clamp
+    fast_share = 0.0 if lp.mixed is None else lp.mixed.fraction * (1.0 - on_share)
+    how = RIPPLE_METHOD if lp.mixed is None else MIXED_RIPPLE_METHOD
     if off_draws:
         ripple = bus_model.clamp_hold_ripple_current(res.hold.ripple)
         on_share = np.ones_like(on_share)
+        how = CLAMP_RIPPLE_METHOD
     else:
-        ripple = bus_model.hold_ripple_current(res.hold.mean, on_share)
+        ripple = bus_model.hold_ripple_current(res.hold.mean, on_share, fast_share)
     k_r = int(np.argmax(ripple))
-    hold_droop = s.source_resistance * np.asarray(res.hold.mean, float) * on_share
+    # (a mixed decay's fast parts give back what they return: the source's average is less)
+    hold_droop = s.source_resistance * np.asarray(res.hold.mean, float) * (on_share - fast_share)
     code = read(float(v_low[k])) if drive.board.supply_sense else None
     return SupplyResult(
         source_resistance_ohm=s.source_resistance, capacitance_f=s.capacitance,
@@ -272,7 +281,7 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
         droop_v=float(lp.v_on[k] - v_low[k]), lowest_bus_code=code,
         supply_min_code=supply_min_code if drive.board.supply_sense else None,
         capacitor_energy_j=float(energy[k_e]), capacitor_energy_corner=grid.label(k_e),
-        ripple_current_a=float(ripple[k_r]), ripple_corner=grid.label(k_r), ripple_method=CLAMP_RIPPLE_METHOD if off_draws else RIPPLE_METHOD,
+        ripple_current_a=float(ripple[k_r]), ripple_corner=grid.label(k_r), ripple_method=how,
         hold_droop_v=float(np.max(hold_droop)), **(bridge_bus or {}),
         **({} if handover is None else dict(
             handover_current_a=float(handover[k]), lowest_bus_method=method,

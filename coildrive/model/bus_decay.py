@@ -32,7 +32,10 @@ Where the extremes are, exactly:
 * The bus rises from ``v0 <= V_s`` to its first maximum at the first zero of ``dv/dt``
   (closed form, :func:`coildrive.model.linear2.first_zero`); later maxima of a damped
   oscillation are lower. Its highest is ``v`` at the earlier of that and the current's
-  zero, or ``V_s`` if higher.
+  zero, or ``V_s`` if higher. A bus that starts above the source by more than ``R_s i0``
+  (a mixed-decay hold's returns, a drain on the bus: :func:`decay_drawn`) falls first, to
+  that first zero of ``dv/dt``: its highest is then the start, or the next turn of a
+  complex pair (``pi/omega`` later) or the current's zero where higher.
 
 **A supply that cannot sink** (``supply.sink = false``: a diode in its feed, taken as
 ideal, one-way, no drop): the source feeds the bus only while ``v < V_s``. From a bus at
@@ -146,6 +149,21 @@ def decay(i0, v0, i_drop, v_s, r_s, c, r, l, v_d) -> FastDecay:
     t_drop = _fall(lambda t: at(t)[0], i0, i_drop, t_zero)
     t_top = np.minimum(linear2.first_zero(z[1], zz[1], l1, l2), t_zero)
     v_top = at(t_top)[1]
+    falling = z[1] < 0.0
+    if falling.any():
+        # a bus that starts above the source (a drain on it, :func:`decay_drawn`; a
+        # mixed-decay hold's returns, :func:`mixed_hold_rise`) and above it by more than
+        # R_s i0 first falls to its minimum (that first zero of dv/dt): its highest is then
+        # the start, the next turn of a complex pair (pi/omega later) or the current's zero
+        w = np.abs(l1.imag)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            t_next = np.where(w > 0, linear2.first_zero(z[1], zz[1], l1, l2) + np.pi / np.where(w > 0, w, 1.0),
+                              np.inf)
+        t_next = np.where(np.isfinite(t_next) & (t_next < t_zero), t_next, t_zero)
+        v_next = at(t_next)[1]
+        later = v_next > v0
+        t_top = np.where(falling, np.where(later, t_next, 0.0), t_top)
+        v_top = np.where(falling, np.where(later, v_next, v0), v_top)
     bus_max = np.maximum(v_top, v_s)
     i_z, v_z = at(t_zero)
     # int_0^t (x - x_ss) dt = A^-1 (x(t) - x(0)): the current's part, plus i_ss t
@@ -293,3 +311,101 @@ def decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, l, v_d) -> FastDecay:
     when = np.where(blocked, t_zero, fed.bus_max_time)
     return FastDecay(t_drop, t_zero, bus_top, bus_max, np.where(bus_top > v_s, when, np.inf), v_end,
                      q_a + q_b)
+
+
+def decay_drawn(i0, v0, i_drop, v_s, i_c, r_s, c, r, l, v_d, sink: bool = True) -> FastDecay:
+    """:func:`decay` (``sink``) or :func:`decay_no_sink` with a constant current ``i_c`` A
+    drawn off the bus throughout (a boost converter fed from the main bus recharging its
+    capacitor, :func:`coildrive.design.supply.converter_current`); ``v0`` at or below
+    ``v_s`` V, possibly above ``V_s' = v_s - R_s i_c``.
+
+    While the source feeds the bus, ``C dv/dt = i + (V_s - v)/R_s - i_c = i + (V_s' -
+    v)/R_s``: :func:`decay`'s circuit with the source ``V_s'`` (Thevenin, exact). A supply
+    that sinks stays there until the current's zero (``bus_max``: the highest bus, or
+    ``V_s'`` the bus relaxes to). A supply that cannot sink blocks where the bus reaches
+    ``v_s`` (not ``V_s'``): a bus that starts rising reaches it on the rise to its first
+    maximum (bisection); one that starts falling (``i0 < i_c - (v_s - v0)/R_s``) never
+    does (at ``v = v_s`` it would need ``i > i_c``, and the current only falls). Blocked,
+    ``L di/dt = -(R i + v + 2 V_d)``, ``C dv/dt = i - i_c``: linear with a constant input,
+    ``A = [[-R/L, -1/L], [1/C, 0]]`` about ``(i_c, -(R i_c + 2 V_d))``, closed form; the bus
+    rises to its top where ``i = i_c`` (the first zero of ``dv/dt``) and falls after it. The
+    current falls all the while (``v >= v_s > 0``), so the blocked stretch ends at the
+    earlier of the current's zero (a bisection up to its first minimum) and the bus back at
+    ``v_s`` (a bisection on its fall after the top): from there the source feeds it again,
+    :func:`decay` with ``V_s'`` from ``(i, v_s)``, the bus never back up to ``v_s`` (the
+    current is below ``i_c``). ``i_c = 0`` is :func:`decay_no_sink`'s circuit (its second
+    stretch the series RLC circuit: the same numbers)."""
+    i0, v0, i_drop, v_s, i_c, r_s, c, r, l, v_d = np.broadcast_arrays(
+        *(np.asarray(x, float) for x in (i0, v0, i_drop, v_s, i_c, r_s, c, r, l, v_d)))
+    v_fed = v_s - r_s * i_c
+    fed = decay(i0, v0, i_drop, v_fed, r_s, c, r, l, v_d)
+    if sink:
+        return fed
+    a, _, y, i_ss, at = _fed(i0, v0, v_fed, r_s, c, r, l, v_d)
+    rising = linear2.times(a, y)[1] > 0.0
+    reach = rising & (fed.bus_top > v_s) & (v0 < v_s)
+    t_a = _fall(lambda t: v_s - at(t)[1], v_s - v0, 0.0, np.where(reach, fed.bus_max_time, 0.0))
+    blocked = reach | ((v0 >= v_s) & (i0 > i_c))
+    t_a = np.where(reach, t_a, 0.0)
+    i_a = np.where(reach, at(t_a)[0], np.where(blocked, i0, i_c + 1.0))
+    det = a[0] * a[3] - a[1] * a[2]
+    q_a = np.where(reach, i_ss * t_a + (a[3] * (i_a - i0) - a[1] * (v_s - v0)) / det, 0.0)
+    # blocked: about (i_c, -(R i_c + 2 V_d))
+    ab = (-r / l, -1.0 / l, 1.0 / c, np.zeros_like(c))
+    lb1, lb2 = linear2.eigenvalues(*ab)
+    vb_ss = -(r * i_c + 2.0 * v_d)
+    yb = (i_a - i_c, v_s - vb_ss)
+
+    def at_b(t):
+        di, dv = linear2.apply(t, ab, lb1, lb2, yb)
+        return i_c + di, vb_ss + dv
+    zb = linear2.times(ab, yb)
+    zzb = linear2.times(ab, zb)
+    t_top = linear2.first_zero(zb[1], zzb[1], lb1, lb2)          # i = i_c: the bus's top
+    t_imin = linear2.first_zero(zb[0], zzb[0], lb1, lb2)         # the current's first minimum
+    # (always one: the bus must come back down, below v_s, so the current below i_c)
+    t_imin = np.where(np.isfinite(t_imin), t_imin, _grow(lambda t: at_b(t)[0], np.full_like(v_s, np.inf), l / r))
+    t_iz = _fall(lambda t: at_b(t)[0], i_a, 0.0, t_imin)
+    t_iz = np.where(at_b(t_imin)[0] <= 0.0, t_iz, np.inf)
+    w = np.abs(lb1.imag)
+    with np.errstate(divide="ignore"):
+        t_vmin = np.where(w > 0, np.pi / np.where(w > 0, w, 1.0), np.inf)   # after the top
+    span = _grow(lambda t: at_b(t_top + t)[1] - v_s, t_vmin, l / r)
+    t_back = t_top + _fall(lambda t: at_b(t_top + t)[1], np.full_like(v_s, np.inf), v_s, span)
+    by_zero = t_iz <= t_back
+    t_b = np.where(by_zero, t_iz, t_back)
+    i_b, v_b = at_b(t_b)
+    i_b = np.where(by_zero, 0.0, i_b)
+    q_b = i_c * t_b + c * (v_b - v_s)
+    v_top = at_b(t_top)[1]
+    # fed again from the bus back at v_s
+    back = blocked & ~by_zero
+    fed_c = decay(np.where(back, i_b, 0.0), v_s, i_drop, v_fed, r_s, c, r, l, v_d)
+    drop_in_a = ~blocked | (i_a <= i_drop)
+    drop_in_b = (i_b <= i_drop) & ~drop_in_a
+    t_drop_b = _fall(lambda t: at_b(t)[0], i_a, i_drop, np.where(drop_in_b, t_b, 0.0))
+    t_drop = np.where(drop_in_a, fed.drop_time,
+                      t_a + np.where(drop_in_b, t_drop_b, t_b + fed_c.drop_time))
+    t_zero = np.where(blocked, t_a + t_b + np.where(back, fed_c.zero_time, 0.0), fed.zero_time)
+    bus_top = np.where(blocked, v_top, fed.bus_top)
+    when = np.where(blocked, t_a + t_top, fed.bus_max_time)
+    v_end = np.where(blocked, np.where(back, fed_c.bus_at_zero, v_b), fed.bus_at_zero)
+    charge = np.where(blocked, q_a + q_b + np.where(back, fed_c.charge, 0.0), fed.charge)
+    return FastDecay(t_drop, t_zero, bus_top, np.maximum(bus_top, v_fed),
+                     np.where(bus_top > v_fed, when, np.inf), v_end, charge)
+
+
+def mixed_hold_rise(r_s, c, i_top, t_fast, period) -> np.ndarray:
+    """A bound (V) on how far a full bridge's mixed-decay hold lifts a bus that sinks above
+    its source: with ``u = v - V_s``, ``C du/dt = -u/R_s + j``, where ``j``, the coil's
+    current into the bus, is at most ``i_top`` A in each off-time's fast part (at most
+    ``t_fast`` s once every ``period`` s) and at most 0 otherwise (an on-time draws, a slow
+    part neither draws nor returns; after a boosted peak its converter draws too). By
+    comparison ``u`` stays below the same equation driven by ``i_top`` through every fast
+    part, from ``u <= 0`` when the hold starts: below that rectangular train's periodic
+    orbit, whose top (at the end of a pulse) is ``R_s i_top (1 - e^{-t_fast/tau}) / (1 -
+    e^{-period/tau})``, ``tau = R_s C`` (``R_s`` ohm, ``C`` F; towards ``R_s i_top t_fast /
+    period`` for a bus slow against the period, ``R_s i_top`` for a fast one)."""
+    r_s, c, i_top, t_fast, period = (np.asarray(x, float) for x in (r_s, c, i_top, t_fast, period))
+    tau = r_s * c
+    return r_s * i_top * np.expm1(-t_fast / tau) / np.expm1(-period / tau)

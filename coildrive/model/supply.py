@@ -201,14 +201,18 @@ def capacitor_energy(c, v_s, v_low) -> np.ndarray:
     return 0.5 * np.asarray(c, float) * (np.asarray(v_s, float) ** 2 - np.asarray(v_low, float) ** 2)
 
 
-def hold_ripple_current(mean, duty) -> np.ndarray:
+def hold_ripple_current(mean, duty, fast=0.0) -> np.ndarray:
     """RMS (A) of the capacitor's current in the PWM hold: the bus draws the coil current
     in the on-time only; the source, behind ``R_s`` with ``R_s C`` long against the PWM
     period, gives its average; the capacitor carries the rest. With the coil's own ripple
     neglected against its mean (the coil current taken flat at ``mean`` A while on), that
-    is ``mean * sqrt(D (1 - D))``."""
-    d = np.asarray(duty, float)
-    return np.asarray(mean, float) * np.sqrt(np.clip(d * (1.0 - d), 0.0, None))
+    is ``mean * sqrt(D (1 - D))``. A full bridge's mixed decay returns the coil current
+    into the bus for the share ``fast`` (``F``) of each period as well: the bus current
+    takes ``-I``, ``+I`` and 0 for ``D``, ``F`` and the rest, so about its average ``I (F
+    - D)`` the RMS is ``mean * sqrt(D + F - (F - D)^2)``."""
+    d, f = np.asarray(duty, float), np.asarray(fast, float)
+    # D + F - (F - D)^2 written so that F = 0 is D (1 - D) to the bit
+    return np.asarray(mean, float) * np.sqrt(np.clip(d * (1.0 - d) + f * (1.0 - f) + 2.0 * f * d, 0.0, None))
 
 
 def bus_floor(v_s, r_s, i_top) -> np.ndarray:
