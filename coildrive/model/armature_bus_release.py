@@ -59,8 +59,8 @@ def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
     drop ``2 V_d``. ``p``: the release loop's points on the drooping bus (``p.droops``,
     a linear coil without an eddy term; ``r_off`` the coil's path, ``v_on`` the source);
     ``sink``: False, a supply that cannot sink (module docstring)."""
-    if p.curves is not None or p.eddy is not None or not p.droops:
-        raise ValueError("the bridge's release on the drooping bus: a linear coil, no eddy term, R_s > 0")
+    if not p.droops:
+        raise ValueError("the bridge's release on the drooping bus: R_s > 0")
     n = len(p)
     i_off, v0, v_d2 = (np.broadcast_to(np.asarray(a, float), (n,)).copy() for a in (i_off, v0, v_diodes))
     lam_stay = p.flux_closed(p.stay_current)
@@ -69,7 +69,9 @@ def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
     y = np.stack([p.flux_closed(i_off), zeros, zeros, zeros, zeros, v0])
     off = np.zeros(n, bool)
     ones = np.ones(n, bool)
-    live = i_off > 0.0
+    # with an eddy term the diodes conduct while the terminal current (R_e i - v - 2 V_d) /
+    # (R_off + R_e) is positive: at once blocked where the magnetising current is below that
+    live = i_off > (0.0 if p.eddy is None else (v0 + v_d2) / p.eddy)
     high = np.stack([v0.copy(), zeros.copy()])
     # the electrical decay against a bus no lower than min(v0, V_s), the flight, R_s C
     bound = (time_bound(zeros, p.l_closed, p.r_off, p.mass, p.stroke, p.damping, p.opening_force(p.stroke))
@@ -82,20 +84,28 @@ def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
     status = np.full(n, -1)
     stall_gap = np.full(n, np.nan)
     # seated until the flux falls to the stay current's (the armature held on the seat)
-    seated = live & (i_off > p.stay_current)
-    if seated.any():
+    zero_time = np.where(live, zero_time, 0.0)
+    bus_zero = np.where(live, bus_zero, v0)
+    seated = (live | (p.eddy is not None)) & (i_off > p.stay_current)
+    for _ in range(2):   # (an eddy term: the terminal current may stop first, the flux held on)
+        if not seated.any():
+            break
         fl = fly_mixed(p, t, y, bound, seated, off, live, stiff, rtol, held=ones, flux_down=lam_stay,
                        returns=v_d2, high=high, sink=sink)
         steps += fl.steps
-        stuck = seated & (fl.end != START)   # (never within the bound: it stays seated)
-        status = np.where(stuck, NOT_OPEN, status)
-        stall_gap = np.where(stuck, 0.0, stall_gap)
         t = np.where(seated, fl.t, t)
         y = np.where(seated, fl.y, y)
-        y[0] = np.where(seated & ~stuck, np.minimum(y[0], lam_stay * (1.0 - 1e-12)), y[0])
+        zero = seated & (fl.end == ZERO)
+        zero_time = np.where(zero, t, zero_time)
+        bus_zero = np.where(zero, y[5], bus_zero)
+        live = live & ~zero
+        stuck = seated & ~zero & (fl.end != START)   # (never within the bound: it stays seated)
+        status = np.where(stuck, NOT_OPEN, status)
+        stall_gap = np.where(stuck, 0.0, stall_gap)
+        left = seated & (fl.end == START)
+        y[0] = np.where(left, np.minimum(y[0], lam_stay * (1.0 - 1e-12)), y[0])
+        seated = zero
     unlatch = t.copy()
-    zero_time = np.where(live, zero_time, 0.0)
-    bus_zero = np.where(live, bus_zero, v0)
     open_time = np.full(n, np.inf)
     active = status < 0
     for _ in range(max_rounds):
@@ -109,7 +119,8 @@ def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
         zero_time = np.where(zero, t, zero_time)
         bus_zero = np.where(zero, y[5], bus_zero)
         live = live & ~zero
-        y[0] = np.where(zero, 0.0, y[0])
+        if p.eddy is None:   # (with an eddy term the flux outlasts the terminal current)
+            y[0] = np.where(zero, 0.0, y[0])
         stays, open_time, status = open_stop(fl.end, active, y, t, lam_start, open_time, status)
         active = active & ~stays
         active, status, stall_gap = bounce_or_stall(p, fl.end, active, y, status, stall_gap)
