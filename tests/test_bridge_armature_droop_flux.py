@@ -54,13 +54,15 @@ from coildrive.config import load_drive
 from coildrive.model.armature import OPENED
 from coildrive.model.armature_bus_release import release
 
-#: (name, R_e ohm, R_s ohm, C F, i0 A, v0 V, spring preload, sink): the terminal current
-#: stops in flight; behind a feed diode (the bus pumps up); the terminal current stops
-#: while the armature is still seated (R_e i_stay below the bus: the flux then dies through
-#: R_e alone before the armature lets go).
-EDDY = [("flight", 400.0, 1.5, 100e-6, 0.3, 20.0, "0.6 N", True),
-        ("no-sink", 400.0, 1.5, 100e-6, 0.6, 22.0, "2 N", False),
-        ("seated-block", 100.0, 1.5, 100e-6, 0.3, 20.0, "0.6 N", True)]
+#: (name, R_e ohm, R_s ohm, C F, i0 A, v0 V, spring preload, sink, damping N*s/m): the
+#: terminal current stops in flight; behind a feed diode (the bus pumps up); the terminal
+#: current stops while the armature is still seated (R_e i_stay below the bus: the flux
+#: then dies through R_e alone before the armature lets go); a heavily damped armature
+#: (the Rosenbrock steps, their Jacobian of the eddy term's return into the bus).
+EDDY = [("flight", 400.0, 1.5, 100e-6, 0.3, 20.0, "0.6 N", True, None),
+        ("no-sink", 400.0, 1.5, 100e-6, 0.6, 22.0, "2 N", False, None),
+        ("seated-block", 100.0, 1.5, 100e-6, 0.3, 20.0, "0.6 N", True, None),
+        ("stiff", 400.0, 1.5, 100e-6, 0.6, 22.0, "2 N", True, 300.0)]
 #: the saturating latch on a bridge: (name, R_e ohm or None, R_s, C, i0, v0, sink)
 CURVES = [("curves", None, 2.0, 220e-6, 0.6, 10.0, True), ("curves-eddy", 60.0, 2.0, 220e-6, 0.6, 10.0, True)]
 V_D = 0.7   # V, each body diode (the latch's bridge)
@@ -149,10 +151,14 @@ def _check(p, r, ref, field0, v_d, zero_rel=1e-5):
     assert returned == pytest.approx(ref["e_bus"], rel=1e-4)
 
 
-@pytest.mark.parametrize("name, r_e, rs, c, i0, v0, preload, sink", EDDY, ids=[e[0] for e in EDDY])
-def test_eddy_release_against_solve_ivp_and_the_first_law(tmp_path, name, r_e, rs, c, i0, v0, preload, sink):
+@pytest.mark.parametrize("name, r_e, rs, c, i0, v0, preload, sink, damping", EDDY, ids=[e[0] for e in EDDY])
+def test_eddy_release_against_solve_ivp_and_the_first_law(tmp_path, name, r_e, rs, c, i0, v0, preload, sink,
+                                                          damping):
+    from coildrive.model.armature_flight import is_stiff
+
     d, p = _params(tmp_path, rs, c, preload)
-    p = dataclasses.replace(p, eddy=np.array([r_e]))
+    p = dataclasses.replace(p, eddy=np.array([r_e]), damping=p.damping if damping is None else np.array([damping]))
+    assert bool(is_stiff(p, p.opening_force(p.stroke))[0]) == (damping is not None), "precondition: the stepper"
     v_d = d.freewheel.diode_drop
     r = release(p, np.array([i0]), np.array([v0]), 2 * v_d, sink=sink)
     g = values(p)
@@ -280,3 +286,17 @@ def test_simulate_rides_the_drooping_bus(tmp_path):
     opened = float(re.search(r"open at ([0-9.]+) ms", out.stderr).group(1)) * 1e-3
     assert opened == pytest.approx(t[k] + ref["open"], rel=1e-3)
     assert data["position_m"][-1] == pytest.approx(g["stroke"])
+
+
+def test_the_model_device_capture_passes_check(tmp_path):
+    """The model's virtual device (the emulator's physics: the design's own, so plumbing,
+    not numbers) gives a capture of the eddy-term valve whose release returned into the bus
+    that check passes against the design."""
+    from coildrive.bench.check import check_capture
+    from coildrive.bench.synth import synth_design_capture
+    from coildrive.design import design
+
+    des = design(load_drive(_drive_text(tmp_path, False, 400.0)))
+    cap = synth_design_capture(des, actuations=1, hold_time=0.02, noise_codes=1.0, seed=5)
+    report = check_capture(cap, des)
+    assert report.ok, [(i.name, i.status, i.detail) for i in report.items]
