@@ -151,7 +151,9 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
     On a drooping bus (``supply.source_resistance``) the pull-in runs on it (the bulk
     capacitor a state of the run); the hold and the release on the stiff bus, as for the
     still coil (the hold's droop is reported apart; the freewheel path draws nothing from
-    the bus, a clamp's release on the undrooped bus is the safe side). A boosted peak
+    the bus, a clamp's release on the undrooped bus is the safe side) -- but on a full
+    bridge the release returns into the bus, the capacitor a state of its run too
+    (:func:`_release_on_bus`; a linear coil or its curves, an eddy term too). A boosted peak
     (``supply.boost``): the pull-in is the boost's, then the hold's at ``duty``
     (:mod:`coildrive.design.boost_armature`), whatever ``peak_time``."""
     import dataclasses
