@@ -1434,10 +1434,11 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     closed-loop) or current-mode hold (the pull-in run carries the capacitor,
     :mod:`coildrive.model.armature_runs`; the hold is regulated on the stiff bus). Anything
     else is refused in one line rather than designed on a stiff bus. A moving armature on a
-    full bridge: a linear coil without an eddy term (a supply that sinks or not), a
-    voltage-mode or current-mode hold; its release is the fast decay into the bus with the
-    armature letting go, the capacitor a state of the run
-    (:mod:`coildrive.model.armature_bus_release`); not curves or an eddy term."""
+    full bridge: a linear coil or its open and seated curves, either with an eddy term (a
+    supply that sinks or not), a voltage-mode or current-mode hold; its release is the fast
+    decay into the bus with the armature letting go, the capacitor a state of the run (with
+    an eddy term the magnetising branch behind the loop's Thevenin pair, the diodes blocking
+    at the terminal current's zero: :mod:`coildrive.model.armature_bus_release`)."""
     if not supply.droops:
         return
     why = None
@@ -1449,17 +1450,12 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
                                           "eddy-current term or an [armature]")
     elif switch.topology == "full_bridge" and hold.mode == "latch":
         key, why = "hold.mode", "a latching coil on a full bridge"
-    elif armature is not None and switch.topology == "full_bridge" and (armature.open_current
-                                                                        or coil.eddy_resistance > 0):
-        key, why = ("armature", "a moving armature on a full bridge with flux-linkage curves or an "
-                    "eddy-current term (the release into the bus: a linear coil only)")
     elif armature is not None and hold.mode == "latch":
         key, why = "hold.mode", "a latching coil with a moving armature"
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
                          f"{why}: expected source_resistance left out, or one switch (a full bridge: "
-                         "a slow-decay peak-and-hold or, on a supply that sinks, a linear coil's mixed decay; "
-                         "with an [armature] a linear coil without an eddy term; "
+                         "a slow-decay peak-and-hold or, on a supply that sinks, a linear coil's mixed decay without an [armature]; "
                          "a latching coil: one switch, no [armature])")
 
 

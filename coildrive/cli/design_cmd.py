@@ -225,8 +225,16 @@ def simulate_command(
             status("armature: not seated by the end of the peak at this point")
         if w.bus_voltage is not None:
             k = int(w.bus_voltage.argmin())
+            where = "the hold and release on the stiff supply"
+            if d.drive.switch.topology == "full_bridge":   # the release returns into the bus
+                import numpy as np
+
+                after = w.time > w.events["off"]
+                j = int(np.flatnonzero(after)[np.argmax(w.bus_voltage[after])])
+                where = (f"the hold on the stiff supply, the release back into the bus: highest "
+                         f"{float(w.bus_voltage[j]):.4g} V at {float(w.time[j]) * 1e3:.4g} ms")
             status(f"bus: lowest {float(w.bus_voltage[k]):.4g} V at {float(w.time[k]) * 1e3:.4g} ms in the "
-                   "peak (the drooping bus; the hold and release on the stiff supply; column bus_v)")
+                   f"peak (the drooping bus; {where}; column bus_v)")
     if plot is not None:
         from ..design.plot import plot_actuation
         write_atomic(plot, plot_actuation(d, w, f"{d.drive.name} on {d.drive.board.name}: simulated at "

@@ -151,7 +151,9 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
     On a drooping bus (``supply.source_resistance``) the pull-in runs on it (the bulk
     capacitor a state of the run); the hold and the release on the stiff bus, as for the
     still coil (the hold's droop is reported apart; the freewheel path draws nothing from
-    the bus, a clamp's release on the undrooped bus is the safe side). A boosted peak
+    the bus, a clamp's release on the undrooped bus is the safe side) -- but on a full
+    bridge the release returns into the bus, the capacitor a state of its run too
+    (:func:`_release_on_bus`; a linear coil or its curves, an eddy term too). A boosted peak
     (``supply.boost``): the pull-in is the boost's, then the hold's at ``duty``
     (:mod:`coildrive.design.boost_armature`), whatever ``peak_time``."""
     import dataclasses
@@ -216,13 +218,15 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
 
 
 def _release_on_bus(drive: Drive, flat_rel: Loop, l_factor, shape, pin, i_max):
-    """A moving armature's release on a full bridge on the drooping bus (a linear coil;
-    ``supply.sink`` either way): :func:`coildrive.model.armature_bus_release.release_over` from
+    """A moving armature's release on a full bridge on the drooping bus (a linear coil or
+    its curves, an eddy term too; ``supply.sink`` either way): :func:`coildrive.model.armature_bus_release.release_over` from
     :data:`coildrive.model.bus_decay.STARTS` starting buses between the lowest
     the bus can be at the turn-off and the source ``V_s``: the pull-in's lowest bus or,
     once the coil draws no more than the larger of the end of the peak and the hold's top
-    ``i_max`` A, :func:`~coildrive.model.supply.bus_floor` under it (as
-    :func:`coildrive.design.bridge_bus.bus_range`), never below ``-2 V_d``."""
+    ``i_max`` A (with an eddy term the terminal current they bound),
+    :func:`~coildrive.model.supply.bus_floor` under it (as
+    :func:`coildrive.design.bridge_bus.bus_range`), never below ``-2 V_d``; ``i_max`` and
+    the release's currents are magnetising currents with an eddy term."""
     from ..model.armature import params_from_loop
     from ..model.armature_bus_release import release_over
     from ..model.bus_decay import STARTS
@@ -230,11 +234,14 @@ def _release_on_bus(drive: Drive, flat_rel: Loop, l_factor, shape, pin, i_max):
 
     s = drive.supply
     p_bus = params_from_loop(drive.armature, flat_rel, np.ravel(np.broadcast_to(l_factor, shape)),
-                             bus=(s.source_resistance, s.capacitance))
+                             drive.coil.eddy_resistance, bus=(s.source_resistance, s.capacitance))
     v_s = p_bus.v_on
     v_d2 = flat_rel.v_off - flat_rel.v_on     # the two body diodes (V_s + 2 V_d into the bus)
     end = np.where(np.isfinite(pin.peak_end_current), pin.peak_end_current, 0.0)
     top = np.maximum(end, np.where(np.isfinite(i_max), i_max, 0.0))
+    if p_bus.eddy is not None:   # the bus feeds the terminal current: at most (V_s + R_e i_m)/(R + R_e)
+        from ..model.eddy import terminal
+        top = terminal(top, v_s, p_bus.r_on, p_bus.eddy)
     low = np.where(np.isfinite(pin.lowest_bus), pin.lowest_bus, v_s)
     lowest = np.maximum(np.minimum(low, bus_floor(v_s, s.source_resistance, top)), -v_d2)
     return release_over(p_bus, np.where(np.isfinite(i_max), i_max, 0.0), lowest, v_s, v_d2, STARTS,

@@ -23,6 +23,22 @@ motion). The motion feeds energy back: at constant flux the spring's work raises
 field's energy ``lambda^2 (x + g0) / (2 K)``, so the bus rises higher than under a still
 coil's decay and the current lingers.
 
+With the open and seated curves (``p.curves``, :mod:`coildrive.model.gap_curves`) the
+current and the force are the curves' (``i(lambda, x)``, the co-energy force); nothing
+else changes. With an eddy term (``p.eddy``: ``R_e`` across the magnetising branch)
+``lambda`` and ``i`` are the branch's and the branch sees the loop's Thevenin pair::
+
+    dlambda/dt = -k (u + 2 V_d + R_off i)        k = R_e / (R_off + R_e)
+    i_t        = (R_e i - u - 2 V_d) / (R_off + R_e)   (the terminal current: into the bus)
+
+while ``i_t > 0``; at its zero the diodes block (the steppers' event) and the flux dies on
+through ``R_e`` alone (``dlambda/dt = -R_e i``), the bus relaxing without the coil. That
+may come while the armature is seated (then it lets go later, on the flux's tail). The
+charge, ``int i^2 dt``, the zero time and the bus then are the terminal current's.
+
+``release(record=...)`` keeps one point's run as samples (``simulate`` draws the release
+from them).
+
 Units: SI throughout (V, A, ohm, H, m, kg, N, s, F).
 """
 
@@ -34,7 +50,7 @@ import numpy as np
 
 from .armature import (BOUND_FACTOR, MAX_BOUNCES, NOT_OPEN, OPENED, START, ZERO, ArmatureParams,
                        time_bound)
-from .armature_flight import fly_mixed, is_stiff
+from .armature_flight import _hermite, _Rhs, fly_mixed, is_stiff
 from .armature_runs import ReleaseBatch, bounce_or_stall, bus_time_scale, open_stop, settle_status
 
 
@@ -44,32 +60,47 @@ class BusRelease:
     charge ``int i dt`` A*s and ``int i^2 dt`` A^2*s to zero current) and, per point, the
     highest bus ``highest_bus`` V (the capacitor's highest over the run, or the source's
     ``V_s`` it relaxes back to, if higher) with ``highest_bus_time`` s (``inf`` when
-    that is ``V_s``), and the bus when the current stops ``bus_at_zero`` V."""
+    that is ``V_s``), and the bus when the current stops ``bus_at_zero`` V. ``path``
+    (``record``, one point): the run as samples, ``(time s, state 6 x m, terminal current
+    A)`` -- the state's rows ``lambda, x, v, q, sq, u``; else ``None``."""
 
     run: ReleaseBatch
     highest_bus: np.ndarray
     highest_bus_time: np.ndarray
     bus_at_zero: np.ndarray
+    path: tuple | None = None
 
 
 def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
-            max_rounds: int = 4 * MAX_BOUNCES, sink: bool = True) -> BusRelease:
+            max_rounds: int = 4 * MAX_BOUNCES, sink: bool = True, start=None,
+            record: int = 0) -> BusRelease:
     """Turn off at t = 0 with the armature seated, ``i_off`` A flowing and the bus at
     ``v0`` V (at most the source's ``p.v_on``); ``v_diodes`` V the two body diodes'
-    drop ``2 V_d``. ``p``: the release loop's points on the drooping bus (``p.droops``,
-    a linear coil without an eddy term; ``r_off`` the coil's path, ``v_on`` the source);
-    ``sink``: False, a supply that cannot sink (module docstring)."""
-    if p.curves is not None or p.eddy is not None or not p.droops:
-        raise ValueError("the bridge's release on the drooping bus: a linear coil, no eddy term, R_s > 0")
+    drop ``2 V_d``. ``p``: the release loop's points on the drooping bus (``p.droops``;
+    a linear coil or its curves, an eddy term too (``i_off`` then the magnetising
+    current); ``r_off`` the coil's path, ``v_on`` the source); ``sink``: False, a supply
+    that cannot sink (module docstring). ``start``: ``(lambda Wb, x m, v m/s)`` per point
+    in place of the seated coil at ``i_off`` (an armature caught off the seat by the
+    turn-off flies from there; ``i_off`` unused). ``record``: samples per integrator step
+    of the run (one point: ``path``, the steps' cubic Hermite interpolants); 0, none."""
+    if not p.droops:
+        raise ValueError("the bridge's release on the drooping bus: R_s > 0")
     n = len(p)
     i_off, v0, v_d2 = (np.broadcast_to(np.asarray(a, float), (n,)).copy() for a in (i_off, v0, v_diodes))
     lam_stay = p.flux_closed(p.stay_current)
     lam_start = p.flux_open(p.start_current)
     zeros = np.zeros(n)
-    y = np.stack([p.flux_closed(i_off), zeros, zeros, zeros, zeros, v0])
+    if start is None:
+        y = np.stack([p.flux_closed(i_off), zeros, zeros, zeros, zeros, v0])
+    else:
+        y = np.stack([*(np.broadcast_to(np.asarray(a, float), (n,)) for a in start), zeros, zeros, v0])
+    i_m = p.current(y[0], y[1])
+    on_seat = (y[1] <= 0.0) & (y[2] <= 0.0)
     off = np.zeros(n, bool)
     ones = np.ones(n, bool)
-    live = i_off > 0.0
+    # with an eddy term the diodes conduct while the terminal current (R_e i - v - 2 V_d) /
+    # (R_off + R_e) is positive: at once blocked where the magnetising current is below that
+    live = i_m > (0.0 if p.eddy is None else (v0 + v_d2) / p.eddy)
     high = np.stack([v0.copy(), zeros.copy()])
     # the electrical decay against a bus no lower than min(v0, V_s), the flight, R_s C
     bound = (time_bound(zeros, p.l_closed, p.r_off, p.mass, p.stroke, p.damping, p.opening_force(p.stroke))
@@ -77,31 +108,45 @@ def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
     stiff = is_stiff(p, p.opening_force(p.stroke))
     steps = np.zeros(n, int)
     t = zeros.copy()
-    zero_time = np.full(n, np.inf)
-    bus_zero = np.full(n, np.nan)
     status = np.full(n, -1)
     stall_gap = np.full(n, np.nan)
+    zero_time = np.where(live, np.inf, 0.0)
+    bus_zero = np.where(live, np.nan, v0)
+    pieces = [] if record else None
+
+    def fly(t, y, t_end, active, live, **kw):
+        fl = fly_mixed(p, t, y, t_end, active, off, live, stiff, rtol, returns=v_d2, high=high, sink=sink,
+                       record=bool(record), **kw)
+        if record:
+            pieces.append((fl, live.copy(), kw.get("held")))
+        return fl
+
     # seated until the flux falls to the stay current's (the armature held on the seat)
-    seated = live & (i_off > p.stay_current)
-    if seated.any():
-        fl = fly_mixed(p, t, y, bound, seated, off, live, stiff, rtol, held=ones, flux_down=lam_stay,
-                       returns=v_d2, high=high, sink=sink)
+    seated = (live | (p.eddy is not None)) & on_seat & (y[0] > lam_stay)
+    for _ in range(2):   # (an eddy term: the terminal current may stop first, the flux held on)
+        if not seated.any():
+            break
+        fl = fly(t, y, bound, seated, live, held=ones, flux_down=lam_stay)
         steps += fl.steps
-        stuck = seated & (fl.end != START)   # (never within the bound: it stays seated)
-        status = np.where(stuck, NOT_OPEN, status)
-        stall_gap = np.where(stuck, 0.0, stall_gap)
         t = np.where(seated, fl.t, t)
         y = np.where(seated, fl.y, y)
-        y[0] = np.where(seated & ~stuck, np.minimum(y[0], lam_stay * (1.0 - 1e-12)), y[0])
+        zero = seated & (fl.end == ZERO)
+        zero_time = np.where(zero, t, zero_time)
+        bus_zero = np.where(zero, y[5], bus_zero)
+        live = live & ~zero
+        stuck = seated & ~zero & (fl.end != START)   # (never within the bound: it stays seated)
+        status = np.where(stuck, NOT_OPEN, status)
+        stall_gap = np.where(stuck, 0.0, stall_gap)
+        left = seated & (fl.end == START)
+        y[0] = np.where(left, np.minimum(y[0], lam_stay * (1.0 - 1e-12)), y[0])
+        seated = zero
     unlatch = t.copy()
-    zero_time = np.where(live, zero_time, 0.0)
-    bus_zero = np.where(live, bus_zero, v0)
     open_time = np.full(n, np.inf)
     active = status < 0
     for _ in range(max_rounds):
         if not active.any():
             break
-        fl = fly_mixed(p, t, y, bound, active, off, live, stiff, rtol, returns=v_d2, high=high, sink=sink)
+        fl = fly(t, y, bound, active, live)
         steps += fl.steps
         t = np.where(active, fl.t, t)
         y = np.where(active, fl.y, y)
@@ -109,7 +154,8 @@ def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
         zero_time = np.where(zero, t, zero_time)
         bus_zero = np.where(zero, y[5], bus_zero)
         live = live & ~zero
-        y[0] = np.where(zero, 0.0, y[0])
+        if p.eddy is None:   # (with an eddy term the flux outlasts the terminal current)
+            y[0] = np.where(zero, 0.0, y[0])
         stays, open_time, status = open_stop(fl.end, active, y, t, lam_start, open_time, status)
         active = active & ~stays
         active, status, stall_gap = bounce_or_stall(p, fl.end, active, y, status, stall_gap)
@@ -117,8 +163,7 @@ def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
     # current still flowing at the open stop: it decays on into the bus, the armature held
     tail = (status == OPENED) & live
     if tail.any():
-        fl = fly_mixed(p, t, y, np.maximum(bound, t) + bound, tail, off, live, stiff, rtol, held=ones,
-                       returns=v_d2, high=high, sink=sink)
+        fl = fly(t, y, np.maximum(bound, t) + bound, tail, live, held=ones)
         steps += np.where(tail, fl.steps, 0)
         done = tail & (fl.end == ZERO)
         zero_time = np.where(done, fl.t, zero_time)
@@ -129,7 +174,43 @@ def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
     run = ReleaseBatch(status=status, unlatch_time=unlatch, open_time=open_time, zero_time=zero_time,
                        charge=y[3], square=y[4], stall_gap=stall_gap, bound=bound, steps=steps)
     return BusRelease(run=run, highest_bus=np.where(above, high[0], v_s),
-                      highest_bus_time=np.where(above, high[1], np.inf), bus_at_zero=bus_zero)
+                      highest_bus_time=np.where(above, high[1], np.inf), bus_at_zero=bus_zero,
+                      path=None if not record else _path(p, pieces, v_d2, sink, record))
+
+
+def _path(p: ArmatureParams, pieces, v_d2, sink: bool, dense: int) -> tuple:
+    """One point's run as samples (:class:`BusRelease`'s ``path``) from its flights'
+    accepted steps (``pieces``: each flight, its ``live`` and ``held``), ``dense`` samples a
+    step on each step's cubic Hermite interpolant (the slopes the run's right-hand side)."""
+    if len(p) != 1:
+        raise ValueError("a recorded release is one point's")
+    ts, ys, cur = [], [], []
+    for fl, live, held in pieces:
+        t = np.array([a[0] for a in fl.path_t])
+        y = np.stack([a[:, 0] for a in fl.path_y], axis=1)
+        keep = np.isfinite(t)
+        t, y = t[keep], y[:, keep]
+        if t.size < 2:
+            continue
+        rhs = _Rhs(p, np.zeros(1, bool), live, held, v_d2, sink)
+        d = rhs(y)
+        h = np.diff(t)
+        theta = (np.arange(1, dense + 1) / dense)[:, None]
+        yy = _hermite(y[:, None, :-1], y[:, None, 1:], d[:, None, :-1], d[:, None, 1:], h, theta)
+        tt = t[:-1] + theta * h
+        order = np.argsort(tt.T.ravel(), kind="stable")
+        tt = tt.T.ravel()[order]
+        yy = np.transpose(yy, (0, 2, 1)).reshape(6, -1)[:, order]
+        if not ys:   # the turn-off's own sample
+            ts.append(t[:1])
+            ys.append(y[:, :1])
+            i_t = rhs.terminal(p.current(y[0, :1], y[1, :1]), y[5, :1])
+            cur.append(np.maximum(i_t, 0.0) if live[0] else np.zeros(1))
+        ts.append(tt)
+        ys.append(yy)
+        i_t = rhs.terminal(p.current(yy[0], yy[1]), yy[5])
+        cur.append(np.maximum(i_t, 0.0) if live[0] else np.zeros_like(tt))
+    return np.concatenate(ts), np.concatenate(ys, axis=1), np.concatenate(cur)
 
 
 def release_over(p: ArmatureParams, i_off, lowest, highest, v_diodes, starts: int,

@@ -75,7 +75,11 @@ class _Rhs:
     With an eddy term (``p.eddy``, the resistance ``R_e`` across the magnetising branch)
     ``i`` is the branch's current and the branch sees the loop's Thevenin pair: switched on
     ``dlambda/dt = k (u - R_on i)`` with ``k = R_e/(R_on + R_e)``, and the bus feeds the
-    terminal current ``k (i + u/R_e)`` (what ``q``, ``sq`` integrate too).
+    terminal current ``k (i + u/R_e)`` (what ``q``, ``sq`` integrate too). Returned into the
+    bus (``returns``) the same pair with ``k = R_e/(R_off + R_e)``: ``dlambda/dt = -k (u +
+    2 V_d + R_off i)``, the bus taking the terminal current ``(R_e i - u - 2 V_d)/(R_off +
+    R_e)`` while it is positive; blocked (not ``live``), ``dlambda/dt = -R_e i`` and the bus
+    relaxes alone.
     """
 
     def __init__(self, p: ArmatureParams, on: np.ndarray, live: np.ndarray, held: np.ndarray | None = None,
@@ -84,10 +88,12 @@ class _Rhs:
         #: 1 where switched off into the drooping bus (a bridge's fast decay), else 0
         self.back = None
         if returns is not None:
-            if p.eddy is not None or not p.droops:
-                raise ValueError("returns: a linear or curved coil without an eddy term, on a drooping bus")
+            if not p.droops:
+                raise ValueError("returns: a full bridge's fast decay into a drooping bus")
             self.back = (~on).astype(float)
             self.v_d2 = np.broadcast_to(np.asarray(returns, float), on.shape)
+            #: the share of ``-(u + 2 V_d)`` the flux sees returning (1; an eddy term's k, 0 blocked)
+            self.k_back = self.back
         #: False: the source feeds the bus only while it is below V_s (an ideal feed diode)
         self.sink = sink
         #: 0 where the armature is held at its stop (``x``, ``v`` frozen: a resting stretch), else 1
@@ -120,6 +126,11 @@ class _Rhs:
                 self.k_on = re_ / c
                 self.tu = np.where(on, 1.0 / c, 0.0)
                 self.t0 = np.where(on, 0.0, self.t0)
+            if self.back is not None:   # returned into the bus: -(u + 2 V_d) in V_off's place
+                back = (self.back > 0) & ~blocked
+                self.k_back = np.where(back, re_ / c, 0.0)
+                self.tu = np.where(back, -1.0 / c, self.tu)
+                self.t0 = np.where(back, -self.v_d2 / c, self.t0)
         self.f0 = (p.preload + p.rate * p.stroke + p.load) / p.mass
         self.km = p.rate / p.mass
         self.cm = p.beta * self.inv_lc / (2.0 * p.mass)
@@ -162,7 +173,7 @@ class _Rhs:
         jac[:, 4, 1] = 2.0 * i * di_dx
         if self.droop:
             feed = self.on if self.back is None else self.on - self.back * self.live
-            jac[:, 0, 5] = self.live * (self.on * self.k_on - (0.0 if self.back is None else self.back))
+            jac[:, 0, 5] = self.live * (self.on * self.k_on - (0.0 if self.back is None else self.k_back))
             jac[:, 5, 0] = -feed * self.inv_c * di_dl
             jac[:, 5, 1] = -feed * self.inv_c * di_dx
             jac[:, 5, 5] = -self.g_s if self.sink else -self.g_s * (y[5] < self.v_s)
@@ -172,7 +183,7 @@ class _Rhs:
                 jac[:, 4, 5] = 2.0 * i * self.tu
                 jac[:, 4, 0] = 2.0 * i * di_dl
                 jac[:, 4, 1] = 2.0 * i * di_dx
-                jac[:, 5, 5] -= self.on * self.inv_c * self.tu
+                jac[:, 5, 5] -= feed * self.inv_c * self.tu
         jac[:, 1, :] *= np.reshape(self.free, (-1, 1))
         jac[:, 2, :] *= np.reshape(self.free, (-1, 1))
         return jac
@@ -221,7 +232,7 @@ class _Rhs:
         if self.droop:
             drive_v = np.where(self.on > 0, self.k_on * u, self.drive_v)
             if self.back is not None:
-                drive_v = np.where(self.back > 0, -(u + self.v_d2), drive_v)
+                drive_v = np.where(self.back > 0, -self.k_back * (u + self.v_d2), drive_v)
             out[0] = self.live * (drive_v - self.drive_r * i)
         else:
             out[0] = self.live * (self.drive_v - self.drive_r * i)

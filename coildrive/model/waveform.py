@@ -564,7 +564,9 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
 
     On a drooping bus (``supply.source_resistance``) the peak runs on it, the bulk
     capacitor a state of the run (``bus_voltage``); the hold and the release on the stiff
-    bus, as the design takes them.
+    bus, as the design takes them -- but a full bridge's release, which returns the current
+    into the bus, runs on it from the final turn-off (:func:`_bus_release`: the bus at the
+    supply's voltage there, the switches seeing ``V_bus + V_d``).
 
     ``hold``: a hold that regulates by thresholds in place of the PWM (``duty`` and
     ``frequency`` then unused), ``hold(t_start, i0, v_on, r_on, r_off, v_off, inductance)
@@ -719,6 +721,11 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     if tr is None:
         tr = simulate(p, schedule, method=method, points=points, stop=released,
                       release_params=p_rel)
+    on_bus = bridge and s.droops
+    if on_bus:   # the release rides the drooping bus (the capacitor a state of the run)
+        p_bus = params_from_loop(drive.armature, fast, l_factor, drive.coil.eddy_resistance,
+                                 bus=(s.source_resistance, s.capacitance))
+        tr = _bus_release(tr, p_bus, t_off, float(fast.v_off - fast.v_on), s.sink, points)
     current = tr.current
     on = tr.switch_on
     if p.eddy is not None:
@@ -740,7 +747,15 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
             into = tr.time - peak_time - np.floor((tr.time - peak_time) / period) * period
             all_open = ((tr.time > peak_time) & (tr.time < t_off) & (on == 0) & (into > 0.5 * t_on)
                         & (into <= t_on + t_fast * (1 + 1e-9)))
-        v_sw, sense, extra = _bridge_columns(drive, supply, tr.time, current, on, fast_v, t_off,
+        rail = supply
+        if on_bus:   # the switches see the bus: Q1 and Q4 V_bus + V_d while the current returns
+            rail = tr.bus
+            sense_ = drive.board.sense
+            from .bridge import fast_switch_voltage
+
+            fast_v = np.where(current > 0, fast_switch_voltage(rail, fast.diode(drive), sense_.resistance,
+                                                               sense_.position == "coil", current), rail)
+        v_sw, sense, extra = _bridge_columns(drive, rail, tr.time, current, on, fast_v, t_off,
                                              all_open=all_open)
     if split:
         bypass = (tr.time < t_open).astype(np.int8)
@@ -772,6 +787,54 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
                  bus_voltage=tr.bus,
                  **(extra if bridge else node_columns(drive, rail, current, on, v_sw)))
     return boost_columns(drive, w, supply, peak_time, 0.0, 0.0, trace) if s.boosted else w
+
+
+def _bus_release(tr, p_bus, t_off: float, v_d2: float, sink: bool, points: int):
+    """``tr`` (a moving armature's actuation on a full bridge, its hold on the stiff bus) with
+    its release from the final turn-off at ``t_off`` s replaced by the run into the drooping
+    bus (:func:`coildrive.model.armature_bus_release.release` from the state there, the bus
+    at the source's voltage ``p_bus.v_on``, ``v_d2`` V the two body diodes; ``points``
+    samples an integrator step): the current (terminal), the flux, the motion, the bus and
+    the moments after the turn-off (unlatch, open, zero) are the run's."""
+    from .armature import OPENED
+    from .armature_bus_release import release
+
+    k = int(np.searchsorted(tr.time, t_off * (1.0 - 1e-12)))   # the last on-row at the turn-off
+    # (a hold in closed form on the seat carries no flux or integrals: seated at its current)
+    full = tr.flux.size == tr.time.size
+    flux = float(tr.flux[k]) if full else float(p_bus.flux_closed(np.array([tr.current[k]]))[0])
+    start = (np.array([flux]), np.array([float(tr.position[k])]), np.array([float(tr.velocity[k])]))
+    r = release(p_bus, 0.0, float(p_bus.v_on[0]), v_d2, sink=sink, start=start, record=max(points, 2))
+    t, y, i_t = r.path
+    eddy = p_bus.eddy is not None
+    j = 0 if eddy else 1   # (with an eddy term the terminal current steps at the turn-off: both rows)
+    b = r.run
+    log = [(tm, name) for tm, name in tr.log if tm <= t_off]
+    if float(start[1][0]) <= 0.0 and float(start[2][0]) <= 0.0:
+        log.append((t_off + float(b.unlatch_time[0]), "unlatch"))
+    log += [(t_off + float(b.open_time[0]), "open"), (t_off + float(b.zero_time[0]), "zero")]
+    log = sorted((tm, name) for tm, name in log if np.isfinite(tm))
+    events = {name: v for name, v in tr.events.items() if name not in ("unlatch", "open", "zero")}
+    events.update({name: tm for tm, name in log if tm >= t_off})
+
+    def joined(before, after):
+        return np.concatenate([np.asarray(before)[:k + 1], after[j:]])
+
+    mag = None
+    if eddy:
+        mag = joined(tr.magnetising_current if tr.magnetising_current is not None else tr.current,
+                     p_bus.current(y[0], y[1]))
+    integrals = {}
+    if full:
+        integrals = dict(flux=joined(tr.flux, y[0]), charge=joined(tr.charge, tr.charge[k] + y[3]),
+                         square=joined(tr.square, tr.square[k] + y[4]))
+    return dataclasses.replace(
+        tr, time=joined(tr.time, t_off + t), position=joined(tr.position, y[1]), **integrals,
+        velocity=joined(tr.velocity, y[2]), switch_on=joined(tr.switch_on, np.zeros(t.size, tr.switch_on.dtype)),
+        current=joined(tr.current, i_t), magnetising_current=mag,
+        bus=joined(tr.bus if tr.bus is not None else np.full(tr.time.shape, float(p_bus.v_on[0])), y[5]),
+        log=log, events=events, impacts=[im for im in tr.impacts if im[0] <= t_off],
+        state="open" if b.status[0] == OPENED else tr.state, stopped=True)
 
 
 def _boost_trace(drive: Drive, tr, peak_time: float) -> np.ndarray:
