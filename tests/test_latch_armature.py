@@ -98,19 +98,25 @@ def test_set_pulse_against_solve_ivp(bolt):
                                        + p.armature_j, rel=1e-12)
 
 
-def test_reset_travel_against_solve_ivp(bolt):
-    drive, d = bolt
+def open_flight(drive) -> float:
+    """The armature's flight s from the seat to the open stop by solve_ivp (DOP853): spring +
+    load against mass and damping, no current in the set coil."""
     a = drive.armature
-    p = next(p for p in d.latch.pulses if p.name == "reset")
 
-    def rhs(t, y):   # spring + load against mass and damping, no current in the set coil
+    def rhs(t, y):
         return [y[1], (a.spring_preload + a.spring_rate * (a.stroke - y[0]) + a.load_force
                        - a.damping * y[1]) / a.mass]
 
     arrive = lambda t, y: y[0] - a.stroke   # noqa: E731
     arrive.terminal, arrive.direction = True, 1
     r = solve_ivp(rhs, (0, 1.0), [0.0, 0.0], method="DOP853", rtol=1e-11, atol=1e-14, events=arrive)
-    flight = r.t_events[0][0]
+    return float(r.t_events[0][0])
+
+
+def test_reset_travel_against_solve_ivp(bolt):
+    drive, d = bolt
+    p = next(p for p in d.latch.pulses if p.name == "reset")
+    flight = open_flight(drive)
     # from the reset pulse's start: the latest trip (time to reset.current) + the flight
     assert p.open_time_s - p.worst_time_s == pytest.approx(flight, rel=1e-5), "flight vs solve_ivp"
     assert d.latch.armature_interval_s == p.open_time_s

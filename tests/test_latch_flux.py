@@ -319,24 +319,3 @@ def device_reports(d, tmp_path) -> list:
         msgs, _ = run_device(dev, 0.05 + 2.2 * dev.period, step=0.05)
         out.append((ok, check_latch_capture(capture_of(msgs, tmp_path / f"c{scale}.cdcap"), d, coil_temp=100.0)))
     return out
-
-
-def test_a_curve_with_an_armature_is_refused_in_one_line(tmp_path):
-    # (a curve with an eddy term is designed: tests/test_latch_flux_eddy.py)
-    # the bolt's set winding on its open curve and its seated one (the armature's two curves)
-    arm = curve_drive(tmp_path, BOLT, 'inductance = "90 mH"         # plunger seated (= inductance_closed)\n',
-                      flux=0.004, knee=0.5, air=0.01)
-    seated = _table(flux=0.03, knee=0.5, air=0.03).replace("flux_", "seated_")
-    text = arm.read_text()
-    for old, new in (('inductance_open = "25 mH"    # plunger fully out (4 mm gap)\n', ""),
-                     ('inductance_closed = "90 mH"  # plunger seated\n', ""),
-                     ("# current left out: the stroke current of the mechanics x armature.current_margin",
-                      'current = "0.6 A"'),
-                     ("inductance_tolerance = 0.10\n", "inductance_tolerance = 0.10\n" + seated)):
-        assert old in text
-        text = text.replace(old, new, 1)
-    arm.write_text(text)
-    for path, key in ((arm, "armature"),):
-        r = run_cli("design", str(path), "--json")
-        assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1, r.stderr
-        assert f": {key}: " in r.stderr and "flux-linkage curve" in r.stderr, r.stderr

@@ -26,7 +26,10 @@ capacitor's recharge to the bus the pulses were designed from.
 A flux-linkage curve (the set winding's, or the bridge's one coil's) takes every segment
 on the curve (:mod:`coildrive.model.flux`; on a drooping bus :mod:`coildrive.model.flux_bus`),
 the on-time's integrals by :func:`coildrive.model.flux.rise_integrals` (exact over a flat
-top), and ``stored_j`` is ``int i dpsi`` (docs/design-method.md, *A saturating coil*).
+top), and ``stored_j`` is ``int i dpsi`` (docs/design-method.md, *A saturating coil*). With
+``[armature]`` the set winding's open and seated curves: the seat run
+(:func:`seat_run`, :mod:`coildrive.model.gap_curves`) and after the seat the seated
+curve's exact segment (:func:`after_seat`); the decay down the seated curve.
 """
 
 from __future__ import annotations
@@ -504,10 +507,12 @@ def seat_run(drive: Drive, lp, pts: Points, peak_time=None):
 
 def after_seat(pin, p, t, v, r_on):
     """Current A, ``int i dt`` A*s and ``int i^2 dt`` A^2*s ``t`` s after switch-on, ``t``
-    past every seat time: the run up to the seat, then the seated RL rise."""
+    past every seat time: the run up to the seat, then the seated coil's rise (the RL
+    segment, or the seated curve's exact quadrature: ``p.coil_closed``)."""
     dt = np.maximum(t - pin.seat_time, 0.0)
-    q, sq = rise_integrals(dt, pin.seat_current, v, r_on, p.l_closed)
-    return (rise_current(dt, pin.seat_current, v, r_on, p.l_closed), pin.seat_charge + q,
+    seated = p.coil_closed
+    q, sq = rise_integrals(dt, pin.seat_current, v, r_on, seated)
+    return (rise_current(dt, pin.seat_current, v, r_on, seated), pin.seat_charge + q,
             pin.seat_square + sq)
 
 
