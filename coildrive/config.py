@@ -1425,7 +1425,9 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     with a curve :mod:`coildrive.model.flux_bus_decay`, on a supply that cannot sink with
     the feed blocking, with an eddy term too: :mod:`coildrive.design.bridge_bus`; not its
     mixed-decay hold, whose every off-time returns current into the bus, nor a latching
-    coil's pulses). Any hold
+    coil's pulses). A latching coil on one switch, with a moving armature too (the set
+    pulse's seat run carries the capacitor, linear or on its two curves:
+    :func:`coildrive.design.latch.seat_run`). Any hold
     (the droop is the peak's; a regulated hold takes it out of the hold) and any freewheel
     path (a clamp's release, which draws from the bus, is computed on the undrooped bus:
     the safe side). A moving armature: a linear coil or its open and seated curves (an
@@ -1449,13 +1451,11 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
                                                                         or coil.eddy_resistance > 0):
         key, why = ("armature", "a moving armature on a full bridge with flux-linkage curves or an "
                     "eddy-current term (the release into the bus: a linear coil only)")
-    elif armature is not None and hold.mode == "latch":
-        key, why = "hold.mode", "a latching coil with a moving armature"
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
                          f"{why}: expected source_resistance left out, or one switch (a full bridge: "
                          "a slow-decay peak-and-hold, with an [armature] a linear coil without an eddy term; "
-                         "a latching coil: one switch, no [armature])")
+                         "a latching coil: one switch)")
 
 
 def _read_boost(s: "_Section") -> tuple:

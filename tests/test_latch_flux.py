@@ -309,13 +309,14 @@ def test_cli_design_simulate_header_and_the_bench(tmp_path, bridge):
             assert rows["set_end_current"] == rows["reset_end_current"] == rows["set_time_to_zero"] == "pass"
 
 
-def device_reports(d, tmp_path) -> list:
-    """``[(expected ok, check report)]`` of the model's latch device at 9 V with the coil at
-    100 degC: as designed (passes), and with 40 % more coil resistance (fails)."""
+def device_reports(d, tmp_path, supply: float = 9.0, coil_temp: float = 100.0) -> list:
+    """``[(expected ok, check report)]`` of the model's latch device at ``supply`` V with the
+    coil at ``coil_temp`` degC: as designed (passes), and with 40 % more coil resistance (fails)."""
     out = []
     for scale, ok in ((1.0, True), (1.4, False)):
-        dev = LatchDevice(d, DeviceOptions(noise_codes=0.5, seed=5, supply=9.0, coil_temp=100.0,
+        dev = LatchDevice(d, DeviceOptions(noise_codes=0.5, seed=5, supply=supply, coil_temp=coil_temp,
                                            resistance_scale=scale))
         msgs, _ = run_device(dev, 0.05 + 2.2 * dev.period, step=0.05)
-        out.append((ok, check_latch_capture(capture_of(msgs, tmp_path / f"c{scale}.cdcap"), d, coil_temp=100.0)))
+        out.append((ok, check_latch_capture(capture_of(msgs, tmp_path / f"c{scale}.cdcap"), d,
+                                            coil_temp=coil_temp)))
     return out

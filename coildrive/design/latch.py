@@ -318,8 +318,11 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     # energies of the longest pulse on a stiff bus (module docstring)
     v, r_on, ind = lp.v_on, lp.r_on, lp.inductance
     if pin is not None and ticks:   # the pulse outlasts every seat time (margin >= 1)
-        i_end = after_seat(pin, p_arm, short, v, r_on)[0]
-        i_top, q_on, s_on = after_seat(pin, p_arm, long_, v, r_on)
+        # the end current on the bus the pulse runs from (a drooping one: its run again,
+        # to the shortest pulse's end), the energies on the stiff bus
+        i_end = (seat_run(wd, lp, pts, peak_time=short)[0].peak_end_current if droops else
+                 after_seat(pin, p_arm, short, v, r_on)[0])
+        i_top, q_on, s_on = seated_pulse(wd, lp, pts, pin, p_arm, long_)
     else:
         i_end = rise_current_at(wd, lp, short)
         i_top, q_on, s_on = plain_pulse(lp, long_)
@@ -366,8 +369,12 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
         s = drive.supply
         full = loop(wd, np.where(pts.supply < drive.supply.max, drive.supply.min, pts.supply), pts.temp,
                     pts.r_factor, pts.l_factor, sense_factor=pts.sense_factor)
-        b = bus_at(wd, full, full.inductance)   # a curve's: model.flux_bus
-        low, _ = model_of(b).lowest_bus(np.full(full.v_on.shape, t_long), b)
+        if pin is None:
+            b = bus_at(wd, full, full.inductance)   # a curve's: model.flux_bus
+            low, _ = model_of(b).lowest_bus(np.full(full.v_on.shape, t_long), b)
+        else:   # the armature's run carries the capacitor (its lowest over the pulse)
+            low = seat_run(wd, full, Points(full.v_on, pts.temp, pts.r_factor, pts.l_factor, pts.sense_factor),
+                           peak_time=np.full(full.v_on.shape, t_long))[0].lowest_bus
         dv = full.v_on - low
         t_rc = latch_model.recharge_time(dv, full.v_on, lt.recharge_tolerance, s.source_resistance,
                                          s.capacitance)
@@ -494,15 +501,29 @@ def release_loop(drive: Drive, pts: Points):
                 sense_factor=pts.sense_factor)
 
 
-def seat_run(drive: Drive, lp, pts: Points, peak_time=None):
+def seat_run(drive: Drive, lp, pts: Points, peak_time=None, stiff: bool = False):
     """The set pulse held on from rest at the open stop until the armature rests on the seat,
     at the points (:func:`coildrive.model.armature_runs.pull_in`; ``peak_time`` s asks for
-    the current then), and its params."""
+    the current then), and its params. On a drooping bus (``supply.source_resistance``,
+    unless ``stiff``) the bulk capacitor is a state of the run, full (at the source's
+    voltage, ``lp.v_on``) at switch-on: the seat time, the current at ``peak_time`` and
+    the lowest bus up to it are the drooping bus's."""
     from ..model.armature import params_from_loop
     from ..model.armature_runs import pull_in
 
-    p = params_from_loop(drive.armature, lp, pts.l_factor)
+    s = drive.supply
+    bus = (s.source_resistance, s.capacitance) if s.droops and not stiff else (0.0, 0.0)
+    p = params_from_loop(drive.armature, lp, pts.l_factor, bus=bus)
     return pull_in(p, peak_time=peak_time), p
+
+
+def seated_pulse(drive: Drive, lp, pts: Points, pin, p, t):
+    """:func:`after_seat` of a pulse ``t`` s long on the stiff bus at ``lp.v_on`` (the
+    energies' bus: a drooping one gives less), from the seat run ``pin`` (params ``p``) when
+    that is on the stiff bus already, else from a stiff run of its own."""
+    if drive.supply.droops:
+        pin, p = seat_run(drive, lp, pts, stiff=True)
+    return after_seat(pin, p, t, lp.v_on, lp.r_on)
 
 
 def after_seat(pin, p, t, v, r_on):

@@ -83,9 +83,8 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
     r_e = float(np.ravel(ind.resistance)[0]) if isinstance(ind, EddyCoil) else None
     t_on = np.linspace(0.0, t_pulse, points + 1)
     gap_on = None
-    if drive.armature is not None:   # the set pulse moves the armature; config: no droop then
-        t_on, i_on, gap_on = _seating(drive, lp, l_factor, t_pulse, points, supply, coil_temp)
-        bus = np.full(t_on.shape, v)
+    if drive.armature is not None:   # the set pulse moves the armature (a drooping bus: a state of its run)
+        t_on, i_on, gap_on, bus = _seating(drive, lp, l_factor, t_pulse, points, supply, coil_temp)
     elif drive.supply.droops:
         s = drive.supply
         mag = ind.magnetising if r_e is not None else ind
@@ -115,17 +114,21 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
 def _seating(drive: Drive, lp, l_factor: float, t_pulse: float, points: int, supply: float,
              coil_temp: float):
     """The set pulse with a moving armature (:func:`coildrive.model.armature_sim.simulate`
-    from rest at the open stop): ``(t, i, gap)``. The armature must rest on the seat when the
-    pulse ends (the catch then holds it, and the decay is the seated coil's);
-    :class:`NotSeated` otherwise."""
+    from rest at the open stop; on a drooping bus from a full capacitor, a state of the
+    run): ``(t, i, gap, bus)``. The armature must rest on the seat when the pulse ends (the
+    catch then holds it, and the decay is the seated coil's); :class:`NotSeated` otherwise."""
     from .armature import params_from_loop
     from .armature_sim import simulate
 
-    tr = simulate(params_from_loop(drive.armature, lp, l_factor), [(t_pulse, True, points)], points=points)
+    s = drive.supply
+    bus = (s.source_resistance, s.capacitance) if s.droops else (0.0, 0.0)
+    tr = simulate(params_from_loop(drive.armature, lp, l_factor, bus=bus), [(t_pulse, True, points)],
+                  points=points)
     if tr.state != "seated":
         raise NotSeated(f"the armature is not on the seat when the set pulse ends at {supply:g} V, coil "
                          f"{coil_temp:g} degC, so the catch would not hold it")
-    return tr.time, tr.current, tr.position
+    return tr.time, tr.current, tr.position, (np.full(tr.time.shape, float(lp.v_on)) if tr.bus is None
+                                              else tr.bus)
 
 
 def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float,
