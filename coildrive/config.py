@@ -1424,10 +1424,11 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     loop; every turn-off's fast decay into the bus is :mod:`coildrive.model.bus_decay`,
     with a curve :mod:`coildrive.model.flux_bus_decay`, on a supply that cannot sink with
     the feed blocking, with an eddy term too: :mod:`coildrive.design.bridge_bus`; not its
-    mixed-decay hold, whose every off-time returns current into the bus, nor a latching
-    coil's pulses). A latching coil on one switch, with a moving armature too (the set
-    pulse's seat run carries the capacitor, linear or on its two curves:
-    :func:`coildrive.design.latch.seat_run`). Any hold
+    mixed-decay hold, whose every off-time returns current into the bus). A latching coil
+    on one switch, with a moving armature too (the set pulse's seat run carries the
+    capacitor, linear or on its two curves: :func:`coildrive.design.latch.seat_run`), or
+    on a full bridge with a linear coil (each pulse's fast decay into the bus:
+    :func:`coildrive.design.latch.bus_decays`). Any hold
     (the droop is the peak's; a regulated hold takes it out of the hold) and any freewheel
     path (a clamp's release, which draws from the bus, is computed on the undrooped bus:
     the safe side). A moving armature: a linear coil or its open and seated curves (an
@@ -1445,8 +1446,9 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     if switch.topology == "full_bridge" and hold.fast_fraction > 0:
         key, why = "hold.fast_fraction", ("a full bridge's mixed-decay hold (each off-time's fast part "
                                           "returns current into the drooping bus)")
-    elif switch.topology == "full_bridge" and hold.mode == "latch":
-        key, why = "hold.mode", "a latching coil on a full bridge"
+    elif switch.topology == "full_bridge" and hold.mode == "latch" and (coil.flux_current or coil.eddy_resistance):
+        key, why = "hold.mode", ("a latching coil on a full bridge with a flux-linkage curve or an eddy-current "
+                                 "term (the fast decay into the bus: a linear coil only)")
     elif armature is not None and switch.topology == "full_bridge" and (armature.open_current
                                                                         or coil.eddy_resistance > 0):
         key, why = ("armature", "a moving armature on a full bridge with flux-linkage curves or an "
@@ -1455,7 +1457,7 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
                          f"{why}: expected source_resistance left out, or one switch (a full bridge: "
                          "a slow-decay peak-and-hold, with an [armature] a linear coil without an eddy term; "
-                         "a latching coil: one switch)")
+                         "a latching coil: a linear coil on a full bridge)")
 
 
 def _read_boost(s: "_Section") -> tuple:

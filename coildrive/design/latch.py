@@ -45,7 +45,8 @@ from .. import __version__
 from ..config import Drive
 from ..jsondoc import document_head, json_ready
 from ..model import latch as latch_model
-from ..model.bridge import pump_up
+from ..model import bus_decay
+from ..model.bridge import fast_switch_voltage, pump_up
 from ..model.circuit import freewheel_element_energy, full_bridge, loop, open_inductance
 from ..model.eddy import EddyCoil, stored_energy
 from ..model.flux import FluxCoil
@@ -329,6 +330,7 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     rel = release_loop(wd, pts)
     t_zero = decay_time(0.0, i_top, rel.r_off, rel.v_off, ind)
     q_d, s_d = decay_integrals(t_zero, i_top, rel.r_off, rel.v_off, ind)
+    fast = bus_decays(wd, lp, rel, i_top)   # a bridge's fast decay into the drooping bus
     sense = drive.board.sense
     n_sw = 2.0 if bridge else 1.0
     sense_decay = bridge or sense.position == "coil"
@@ -348,11 +350,17 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     k_e = worst(supply_e)
     # the switch voltage at the end of the longest pulse, and a pumped bus
     v_sw = rel.switch_voltage(wd, i_top)
+    if fast is not None:   # the bus rises above the source while the current returns into it
+        bus_top = np.max([f.bus_max for f in fast], axis=0)
+        v_sw = np.maximum(v_sw, fast_switch_voltage(bus_top, rel.diode(wd), r_sense, sense.position == "coil",
+                                                    i_top))
     topo = topology_of(drive)
     node = (float(np.min(topo.node_voltage(pts.supply, v_sw, 0.0 * v_sw))) if topo.shows_node else None)
     k_v = worst(v_sw)
     v_sw_top = float(v_sw[k_v])
-    if bridge and not drive.supply.sink:
+    if fast is not None:
+        checks.append(_bus_check(drive, name, bus_top, pts))
+    elif bridge and not drive.supply.sink:
         pu = pump_up(i_top, v, drive.supply.capacitance, rel.r_off, ind, rel.diode(wd))
         k_p = worst(pu.v2)
         drop = 0.0 if sense.position == "coil" else float(np.max(r_sense * i_top))
@@ -390,7 +398,8 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
         supply_j=float(supply_e[k_e]), copper_j=float(copper[k_e]), switch_sense_j=float(sw_sense[k_e]),
         stored_j=float(np.broadcast_to(stored, supply_e.shape)[k_e]), table=table,
         freewheel_j=float(fw[k_e]), returned_j=float(returned[k_e]), energy_corner=pts.label(k_e),
-        decay_time_s=float(np.max(t_zero)), peak_switch_voltage_v=v_sw_top,
+        decay_time_s=float(np.max(time_to_zero(wd, lp, rel, i_top, fast))),
+        peak_switch_voltage_v=v_sw_top,
         switch_voltage_corner=pts.label(k_v), droop_v=droop, recharge_time_s=recharge,
         recharge_corner=recharge_corner, lowest_node_v=node, armature_j=float(moved[k_e]),
         eddy_j=float(eddy_e[k_e]),
@@ -419,6 +428,58 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
                         f"({result.switch_voltage_corner}) vs {limit:.4g} V ({drive.switch.derating:.0%} "
                         f"of the {drive.switch.max_voltage:.4g} V rating)"))
     return result, checks
+
+
+def bus_decays(drive: Drive, lp, rel, i0) -> list | None:
+    """A full bridge's fast decay of ``i0`` A after a pulse on the drooping bus (else
+    ``None``): the current returns through two body diodes into the bus behind ``R_s`` and
+    ``C`` (:mod:`coildrive.model.bus_decay`, closed form; a supply that cannot sink:
+    ``decay_no_sink``), from each of :data:`~coildrive.model.bus_decay.STARTS` starting buses
+    evenly between the source ``V_s`` (``lp.v_on``) and the lowest the bus can be at the
+    pulse's end: a pulse starts from at least ``(1 - recharge_tolerance) V_s`` (the interval
+    waits for that) and, its current rising to ``i0``, cannot pull the bus below the floor
+    ``V_s - R_s i0`` under it (:func:`~coildrive.model.supply.bus_floor`), nor below ``-2
+    V_d`` (the body diodes). :class:`~coildrive.model.bus_decay.FastDecay` per start."""
+    from ..model.supply import bus_floor
+
+    s = drive.supply
+    if not (s.droops and full_bridge(drive)):
+        return None
+    v_s = np.asarray(lp.v_on, float)
+    v_d = np.asarray(rel.diode(drive), float)
+    lo = np.maximum(np.minimum((1.0 - drive.latch.recharge_tolerance) * v_s, bus_floor(v_s, s.source_resistance, i0)),
+                    -2.0 * v_d)
+    fast = bus_decay.decay if s.sink else bus_decay.decay_no_sink
+    return [fast(i0, lo + (v_s - lo) * k / (bus_decay.STARTS - 1), 0.0, v_s, s.source_resistance, s.capacitance,
+                 rel.r_off, rel.inductance, v_d) for k in range(bus_decay.STARTS)]
+
+
+def time_to_zero(drive: Drive, lp, rel, i0, fast=None):
+    """The longest time (s) from a pulse's end at ``i0`` A to zero current at the points: a
+    bridge's fast decay into the drooping bus over its starting buses (:func:`bus_decays`,
+    or ``fast`` when already run), else the decay of the release path ``rel``."""
+    fast = bus_decays(drive, lp, rel, i0) if fast is None else fast
+    if fast is None:
+        return decay_time(0.0, i0, rel.r_off, rel.v_off, rel.inductance)
+    return np.max([f.zero_time for f in fast], axis=0)
+
+
+def _bus_check(drive: Drive, name: str, bus_top, pts: Points) -> Check:
+    """``{name}_bus``: the highest bus after pulse ``name``'s fast decay on the drooping bus
+    against the bulk capacitor's rating (``supply.capacitor_voltage``; a warning without
+    one). The switches' own check takes the same bus."""
+    k = worst(bus_top)
+    rating = drive.supply.capacitor_voltage
+    where = (f"the fast decay after the {name} pulse lifts the bus to {float(bus_top[k]):.4g} V "
+             f"({pts.label(k)}) on {drive.supply.capacitance * 1e6:.4g} uF behind "
+             f"{drive.supply.source_resistance:.4g} ohm" + ("" if drive.supply.sink else
+                                                             " (the feed blocks: the supply cannot sink)"))
+    if not rating > 0:
+        return Check(f"{name}_bus", False, f"{where}; the drive gives no supply.capacitor_voltage to check it "
+                     "against", severity="warning")
+    ok = float(bus_top[k]) <= rating
+    return Check(f"{name}_bus", ok, f"{where} vs the bulk capacitor's {rating:.4g} V rating"
+                 + ("" if ok else " -- a higher-rated or larger capacitor, a lower source resistance"))
 
 
 def _requirements(wd: Drive, pts: Points, current: float, cm: float):
