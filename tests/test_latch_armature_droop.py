@@ -8,8 +8,10 @@ References, written afresh (tests/test_latch_armature.py's ``_set_pulse_referenc
 inelastic seat) fed from the bulk capacitor, ``C du/dt = (V_s - u) / R_s - i``, full at
 switch-on: the latest seat time and the shortest pulse's end current at the worst corner,
 the lowest bus over the longest pulse; the capacitor's recharge after it from the RC
-step ``R_s C ln(1 + dV / (tol V_s))`` (the coil off the bus, docs/design-method.md).
-Tolerances 1e-5 (the batched model runs at rtol 1e-7).
+step ``R_s C ln(1 + dV / (tol V_s))`` (the coil off the bus, docs/design-method.md); the
+reset winding's trip from a full capacitor (its RL loop and the capacitor by solve_ivp)
+and the armature's flight to the open stop. Tolerances 1e-5 (the batched model runs at
+rtol 1e-7).
 """
 
 from __future__ import annotations
@@ -23,7 +25,7 @@ import pytest
 from conftest import run_cli
 from coildrive.bench.latch_check import predict_pulse
 from coildrive.design.latch_montecarlo import latch_monte_carlo
-from test_latch_armature import BOLT, _set_pulse_reference as ref
+from test_latch_armature import BOLT, open_flight, _set_pulse_reference as ref
 from test_latch_armature_curves import designed
 from test_latch_flux import _corner, device_reports
 
@@ -72,6 +74,26 @@ def test_set_pulse_on_the_drooping_bus_against_solve_ivp(bolt):
     _, supply_j, copper_j, work = ref(drive, v, temp, rf, lf, p.time_s)
     assert p.supply_j == pytest.approx(supply_j, rel=1e-5) and p.copper_j == pytest.approx(copper_j, rel=1e-5)
     assert p.armature_j == pytest.approx(work, rel=1e-4)
+
+
+def test_reset_trip_on_the_drooping_bus_against_solve_ivp(bolt):
+    # the reset winding's rise from a full capacitor to reset.current (solve_ivp of its RL
+    # loop and the capacitor), then spring + load carry the armature to the open stop
+    from scipy.integrate import solve_ivp
+
+    _, drive, d = bolt
+    p = next(p for p in d.latch.pulses if p.name == "reset")
+    v = drive.supply.min * (1 - drive.latch.recharge_tolerance)
+    _, temp, rf, lf = _corner(p.worst_corner)
+    rc, b = drive.latch.reset_coil, drive.board
+    r_on = (rc.resistance * (1 + 0.00393 * (temp - rc.reference_temp)) * rf + drive.switch.on_resistance
+            + b.sense.resistance)   # copper's alpha per K (IEC 60028); the sense in the coil path
+    trip = lambda t, y: y[1] - p.current_a   # noqa: E731
+    trip.terminal = True
+    r = solve_ivp(lambda t, y: [((v - y[0]) / R_S - y[1]) / C, (y[0] - r_on * y[1]) / (rc.inductance * lf)],
+                  (0, 1.0), [v, 0.0], method="DOP853", rtol=1e-12, atol=1e-14, events=trip)
+    assert p.worst_time_s == pytest.approx(float(r.t_events[0][0]), rel=1e-6), "trip vs solve_ivp"
+    assert p.open_time_s - p.worst_time_s == pytest.approx(open_flight(drive), rel=1e-5), "flight vs solve_ivp"
 
 
 def test_cli_simulate_check_and_monte_carlo(bolt, tmp_path):
