@@ -15,7 +15,9 @@ Q4, - reset through Q3 + Q2); each switch's drain-source voltage is a column (``
 ``q4_v``). After a pulse all four are off and the current flows into the bus through two
 body diodes (``-V_d`` across each, ``V_bus + V_d`` across the other two); with no current
 both legs are drawn at 0 V (they float: a real bridge's leg voltages then depend on its
-gate drivers' leakage). Two windings: one current, coil voltage and switch voltage column
+gate drivers' leakage). On the drooping bus the current returns into the bus behind the
+source resistance, which rises as it does (:func:`fast_decay_after`, :func:`fast_trace`:
+:mod:`coildrive.model.bus_decay`, closed form). Two windings: one current, coil voltage and switch voltage column
 per winding; the windings' magnetic coupling is not modelled (each decays through its own
 freewheel path).
 
