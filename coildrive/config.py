@@ -1426,7 +1426,11 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     the feed blocking, with an eddy term too: :mod:`coildrive.design.bridge_bus`; its
     mixed-decay hold, whose every off-time returns current into the bus, on a supply that
     sinks with a plain linear coil and no armature, the bus's rise bounded by
-    :func:`coildrive.model.bus_decay.mixed_hold_rise`; not a latching coil's pulses). Any hold
+    :func:`coildrive.model.bus_decay.mixed_hold_rise`). A latching coil
+    on one switch, with a moving armature too (the set pulse's seat run carries the
+    capacitor, linear or on its two curves: :func:`coildrive.design.latch.seat_run`), or
+    on a full bridge with a linear coil (each pulse's fast decay into the bus:
+    :func:`coildrive.design.latch.bus_decays`). Any hold
     (the droop is the peak's; a regulated hold takes it out of the hold) and any freewheel
     path (a clamp's release, which draws from the bus, is computed on the undrooped bus:
     the safe side). A moving armature: a linear coil or its open and seated curves (an
@@ -1448,15 +1452,14 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
                                           "(each off-time's fast part returns current the bus keeps: it "
                                           "pumps up period after period) or with a flux-linkage curve, an "
                                           "eddy-current term or an [armature]")
-    elif switch.topology == "full_bridge" and hold.mode == "latch":
-        key, why = "hold.mode", "a latching coil on a full bridge"
-    elif armature is not None and hold.mode == "latch":
-        key, why = "hold.mode", "a latching coil with a moving armature"
+    elif switch.topology == "full_bridge" and hold.mode == "latch" and (coil.flux_current or coil.eddy_resistance):
+        key, why = "hold.mode", ("a latching coil on a full bridge with a flux-linkage curve or an eddy-current "
+                                 "term (the fast decay into the bus: a linear coil only)")
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
                          f"{why}: expected source_resistance left out, or one switch (a full bridge: "
-                         "a slow-decay peak-and-hold or, on a supply that sinks, a linear coil's mixed decay without an [armature]; "
-                         "a latching coil: one switch, no [armature])")
+                         "a slow-decay peak-and-hold or, on a supply that sinks, a linear coil's mixed decay "
+                         "without an [armature]; a latching coil: a linear coil on a full bridge)")
 
 
 def _read_boost(s: "_Section") -> tuple:
@@ -1779,7 +1782,9 @@ def _read_latch(source: str, data: dict, s: "_Section", pull_in: PullIn) -> tupl
 
 def _latch_drive(source, path, data, brd, coil, sheet, supply, ambient, thermal, pull_in, hold,
                  release, armature, duty, latch) -> Drive:
-    """A latching coil's :class:`Drive`: what it is not designed with is refused in one line."""
+    """A latching coil's :class:`Drive`: what it is not designed with is refused in one line.
+    A moving armature takes a linear coil or its open and seated flux-linkage curves
+    (:func:`coildrive.design.latch.seat_run`), not an eddy-current term."""
     why = None
     if coil.drop_out_voltage:
         key, why = "coil.drop_out_voltage", ("a drop-out voltage: it stays where its last pulse put it "
@@ -1788,9 +1793,10 @@ def _latch_drive(source, path, data, brd, coil, sheet, supply, ambient, thermal,
         key = "coil.operate_time" if coil.operate_time else "coil.release_time"
         why = ("the datasheet's operate or release time: they time a monostable coil's peak and "
                "release, which it does not have")
-    elif coil.flux_current and armature is not None:
-        key, why = "armature", ("a flux-linkage curve and a moving [armature] together (the set pulse's seat "
-                                "run and seated rise take the linear L(x))")
+    elif coil.eddy_resistance and armature is not None:
+        key, why = "coil.eddy_resistance", ("an eddy-current term and a moving [armature] together (the set "
+                                            "pulse's seat run takes no eddy term, and the energy balance "
+                                            "cannot tell the eddy resistance's share from the armature's)")
     elif thermal.resistance > 0 and not thermal.capacity > 0:
         key, why = "thermal.capacity", ("no heat capacity (the pulses' heat and the interval between "
                                         "them need it: give thermal.capacity or time_constant)")

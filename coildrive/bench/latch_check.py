@@ -125,7 +125,7 @@ def predict_pulse(design, name: str, supply: float, coil_temp: float, zero_curre
     one code ``resolution`` A takes there, ``code_time_s`` -- of the current the sense reads
     (with an eddy term the terminal current, not the magnetising one)."""
     from ..design.latch import firmware_pulse, rise_current_at, winding_drive
-    from ..model.circuit import loop
+    from ..model.circuit import full_bridge, loop
     from ..model.rl import decay_time
     from ..model.eddy import EddyCoil
     from ..model.flux import incremental_at
@@ -163,6 +163,10 @@ def predict_pulse(design, name: str, supply: float, coil_temp: float, zero_curre
         fall = (r_off * level + v_off) / l_level
         i_sensed = i_end
     t_zero = float(np.ravel(decay_time(level, i_end, r_off, v_off, ind))[0])
+    if wd.supply.droops and full_bridge(wd):   # the fast decay into the drooping bus, from the pulse's end bus
+        from ..model.latch_waveform import fast_decay_after, pulse
+        _, _, on, bus, *_ = pulse(wd, supply, coil_temp, 1.0, 1.0, length, 2)
+        t_zero = float(fast_decay_after(wd, rel, i_end, float(bus[on == 1][-1]), level).drop_time)
     return {"length_s": length, "end_current_a": i_sensed, "slope_a_s": slope, "time_to_zero_s": t_zero,
             "code_time_s": resolution / fall}
 

@@ -26,7 +26,10 @@ capacitor's recharge to the bus the pulses were designed from.
 A flux-linkage curve (the set winding's, or the bridge's one coil's) takes every segment
 on the curve (:mod:`coildrive.model.flux`; on a drooping bus :mod:`coildrive.model.flux_bus`),
 the on-time's integrals by :func:`coildrive.model.flux.rise_integrals` (exact over a flat
-top), and ``stored_j`` is ``int i dpsi`` (docs/design-method.md, *A saturating coil*).
+top), and ``stored_j`` is ``int i dpsi`` (docs/design-method.md, *A saturating coil*). With
+``[armature]`` the set winding's open and seated curves: the seat run
+(:func:`seat_run`, :mod:`coildrive.model.gap_curves`) and after the seat the seated
+curve's exact segment (:func:`after_seat`); the decay down the seated curve.
 """
 
 from __future__ import annotations
@@ -42,7 +45,8 @@ from .. import __version__
 from ..config import Drive
 from ..jsondoc import document_head, json_ready
 from ..model import latch as latch_model
-from ..model.bridge import pump_up
+from ..model import bus_decay
+from ..model.bridge import fast_switch_voltage, pump_up
 from ..model.circuit import freewheel_element_energy, full_bridge, loop, open_inductance
 from ..model.eddy import EddyCoil, stored_energy
 from ..model.flux import FluxCoil
@@ -315,14 +319,18 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     # energies of the longest pulse on a stiff bus (module docstring)
     v, r_on, ind = lp.v_on, lp.r_on, lp.inductance
     if pin is not None and ticks:   # the pulse outlasts every seat time (margin >= 1)
-        i_end = after_seat(pin, p_arm, short, v, r_on)[0]
-        i_top, q_on, s_on = after_seat(pin, p_arm, long_, v, r_on)
+        # the end current on the bus the pulse runs from (a drooping one: its run again,
+        # to the shortest pulse's end), the energies on the stiff bus
+        i_end = (seat_run(wd, lp, pts, peak_time=short)[0].peak_end_current if droops else
+                 after_seat(pin, p_arm, short, v, r_on)[0])
+        i_top, q_on, s_on = seated_pulse(wd, lp, pts, pin, p_arm, long_)
     else:
         i_end = rise_current_at(wd, lp, short)
         i_top, q_on, s_on = plain_pulse(lp, long_)
     rel = release_loop(wd, pts)
     t_zero = decay_time(0.0, i_top, rel.r_off, rel.v_off, ind)
     q_d, s_d = decay_integrals(t_zero, i_top, rel.r_off, rel.v_off, ind)
+    fast = bus_decays(wd, lp, rel, i_top)   # a bridge's fast decay into the drooping bus
     sense = drive.board.sense
     n_sw = 2.0 if bridge else 1.0
     sense_decay = bridge or sense.position == "coil"
@@ -342,11 +350,17 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     k_e = worst(supply_e)
     # the switch voltage at the end of the longest pulse, and a pumped bus
     v_sw = rel.switch_voltage(wd, i_top)
+    if fast is not None:   # the bus rises above the source while the current returns into it
+        bus_top = np.max([f.bus_max for f in fast], axis=0)
+        v_sw = np.maximum(v_sw, fast_switch_voltage(bus_top, rel.diode(wd), r_sense, sense.position == "coil",
+                                                    i_top))
     topo = topology_of(drive)
     node = (float(np.min(topo.node_voltage(pts.supply, v_sw, 0.0 * v_sw))) if topo.shows_node else None)
     k_v = worst(v_sw)
     v_sw_top = float(v_sw[k_v])
-    if bridge and not drive.supply.sink:
+    if fast is not None:
+        checks.append(_bus_check(drive, name, bus_top, pts))
+    elif bridge and not drive.supply.sink:
         pu = pump_up(i_top, v, drive.supply.capacitance, rel.r_off, ind, rel.diode(wd))
         k_p = worst(pu.v2)
         drop = 0.0 if sense.position == "coil" else float(np.max(r_sense * i_top))
@@ -363,8 +377,12 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
         s = drive.supply
         full = loop(wd, np.where(pts.supply < drive.supply.max, drive.supply.min, pts.supply), pts.temp,
                     pts.r_factor, pts.l_factor, sense_factor=pts.sense_factor)
-        b = bus_at(wd, full, full.inductance)   # a curve's: model.flux_bus
-        low, _ = model_of(b).lowest_bus(np.full(full.v_on.shape, t_long), b)
+        if pin is None:
+            b = bus_at(wd, full, full.inductance)   # a curve's: model.flux_bus
+            low, _ = model_of(b).lowest_bus(np.full(full.v_on.shape, t_long), b)
+        else:   # the armature's run carries the capacitor (its lowest over the pulse)
+            low = seat_run(wd, full, Points(full.v_on, pts.temp, pts.r_factor, pts.l_factor, pts.sense_factor),
+                           peak_time=np.full(full.v_on.shape, t_long))[0].lowest_bus
         dv = full.v_on - low
         t_rc = latch_model.recharge_time(dv, full.v_on, lt.recharge_tolerance, s.source_resistance,
                                          s.capacitance)
@@ -380,7 +398,8 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
         supply_j=float(supply_e[k_e]), copper_j=float(copper[k_e]), switch_sense_j=float(sw_sense[k_e]),
         stored_j=float(np.broadcast_to(stored, supply_e.shape)[k_e]), table=table,
         freewheel_j=float(fw[k_e]), returned_j=float(returned[k_e]), energy_corner=pts.label(k_e),
-        decay_time_s=float(np.max(t_zero)), peak_switch_voltage_v=v_sw_top,
+        decay_time_s=float(np.max(time_to_zero(wd, lp, rel, i_top, fast))),
+        peak_switch_voltage_v=v_sw_top,
         switch_voltage_corner=pts.label(k_v), droop_v=droop, recharge_time_s=recharge,
         recharge_corner=recharge_corner, lowest_node_v=node, armature_j=float(moved[k_e]),
         eddy_j=float(eddy_e[k_e]),
@@ -409,6 +428,58 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
                         f"({result.switch_voltage_corner}) vs {limit:.4g} V ({drive.switch.derating:.0%} "
                         f"of the {drive.switch.max_voltage:.4g} V rating)"))
     return result, checks
+
+
+def bus_decays(drive: Drive, lp, rel, i0) -> list | None:
+    """A full bridge's fast decay of ``i0`` A after a pulse on the drooping bus (else
+    ``None``): the current returns through two body diodes into the bus behind ``R_s`` and
+    ``C`` (:mod:`coildrive.model.bus_decay`, closed form; a supply that cannot sink:
+    ``decay_no_sink``), from each of :data:`~coildrive.model.bus_decay.STARTS` starting buses
+    evenly between the source ``V_s`` (``lp.v_on``) and the lowest the bus can be at the
+    pulse's end: a pulse starts from at least ``(1 - recharge_tolerance) V_s`` (the interval
+    waits for that) and, its current rising to ``i0``, cannot pull the bus below the floor
+    ``V_s - R_s i0`` under it (:func:`~coildrive.model.supply.bus_floor`), nor below ``-2
+    V_d`` (the body diodes). :class:`~coildrive.model.bus_decay.FastDecay` per start."""
+    from ..model.supply import bus_floor
+
+    s = drive.supply
+    if not (s.droops and full_bridge(drive)):
+        return None
+    v_s = np.asarray(lp.v_on, float)
+    v_d = np.asarray(rel.diode(drive), float)
+    lo = np.maximum(np.minimum((1.0 - drive.latch.recharge_tolerance) * v_s, bus_floor(v_s, s.source_resistance, i0)),
+                    -2.0 * v_d)
+    fast = bus_decay.decay if s.sink else bus_decay.decay_no_sink
+    return [fast(i0, lo + (v_s - lo) * k / (bus_decay.STARTS - 1), 0.0, v_s, s.source_resistance, s.capacitance,
+                 rel.r_off, rel.inductance, v_d) for k in range(bus_decay.STARTS)]
+
+
+def time_to_zero(drive: Drive, lp, rel, i0, fast=None):
+    """The longest time (s) from a pulse's end at ``i0`` A to zero current at the points: a
+    bridge's fast decay into the drooping bus over its starting buses (:func:`bus_decays`,
+    or ``fast`` when already run), else the decay of the release path ``rel``."""
+    fast = bus_decays(drive, lp, rel, i0) if fast is None else fast
+    if fast is None:
+        return decay_time(0.0, i0, rel.r_off, rel.v_off, rel.inductance)
+    return np.max([f.zero_time for f in fast], axis=0)
+
+
+def _bus_check(drive: Drive, name: str, bus_top, pts: Points) -> Check:
+    """``{name}_bus``: the highest bus after pulse ``name``'s fast decay on the drooping bus
+    against the bulk capacitor's rating (``supply.capacitor_voltage``; a warning without
+    one). The switches' own check takes the same bus."""
+    k = worst(bus_top)
+    rating = drive.supply.capacitor_voltage
+    where = (f"the fast decay after the {name} pulse lifts the bus to {float(bus_top[k]):.4g} V "
+             f"({pts.label(k)}) on {drive.supply.capacitance * 1e6:.4g} uF behind "
+             f"{drive.supply.source_resistance:.4g} ohm" + ("" if drive.supply.sink else
+                                                             " (the feed blocks: the supply cannot sink)"))
+    if not rating > 0:
+        return Check(f"{name}_bus", False, f"{where}; the drive gives no supply.capacitor_voltage to check it "
+                     "against", severity="warning")
+    ok = float(bus_top[k]) <= rating
+    return Check(f"{name}_bus", ok, f"{where} vs the bulk capacitor's {rating:.4g} V rating"
+                 + ("" if ok else " -- a higher-rated or larger capacitor, a lower source resistance"))
 
 
 def _requirements(wd: Drive, pts: Points, current: float, cm: float):
@@ -491,23 +562,39 @@ def release_loop(drive: Drive, pts: Points):
                 sense_factor=pts.sense_factor)
 
 
-def seat_run(drive: Drive, lp, pts: Points, peak_time=None):
+def seat_run(drive: Drive, lp, pts: Points, peak_time=None, stiff: bool = False):
     """The set pulse held on from rest at the open stop until the armature rests on the seat,
     at the points (:func:`coildrive.model.armature_runs.pull_in`; ``peak_time`` s asks for
-    the current then), and its params."""
+    the current then), and its params. On a drooping bus (``supply.source_resistance``,
+    unless ``stiff``) the bulk capacitor is a state of the run, full (at the source's
+    voltage, ``lp.v_on``) at switch-on: the seat time, the current at ``peak_time`` and
+    the lowest bus up to it are the drooping bus's."""
     from ..model.armature import params_from_loop
     from ..model.armature_runs import pull_in
 
-    p = params_from_loop(drive.armature, lp, pts.l_factor)
+    s = drive.supply
+    bus = (s.source_resistance, s.capacitance) if s.droops and not stiff else (0.0, 0.0)
+    p = params_from_loop(drive.armature, lp, pts.l_factor, bus=bus)
     return pull_in(p, peak_time=peak_time), p
+
+
+def seated_pulse(drive: Drive, lp, pts: Points, pin, p, t):
+    """:func:`after_seat` of a pulse ``t`` s long on the stiff bus at ``lp.v_on`` (the
+    energies' bus: a drooping one gives less), from the seat run ``pin`` (params ``p``) when
+    that is on the stiff bus already, else from a stiff run of its own."""
+    if drive.supply.droops:
+        pin, p = seat_run(drive, lp, pts, stiff=True)
+    return after_seat(pin, p, t, lp.v_on, lp.r_on)
 
 
 def after_seat(pin, p, t, v, r_on):
     """Current A, ``int i dt`` A*s and ``int i^2 dt`` A^2*s ``t`` s after switch-on, ``t``
-    past every seat time: the run up to the seat, then the seated RL rise."""
+    past every seat time: the run up to the seat, then the seated coil's rise (the RL
+    segment, or the seated curve's exact quadrature: ``p.coil_closed``)."""
     dt = np.maximum(t - pin.seat_time, 0.0)
-    q, sq = rise_integrals(dt, pin.seat_current, v, r_on, p.l_closed)
-    return (rise_current(dt, pin.seat_current, v, r_on, p.l_closed), pin.seat_charge + q,
+    seated = p.coil_closed
+    q, sq = rise_integrals(dt, pin.seat_current, v, r_on, seated)
+    return (rise_current(dt, pin.seat_current, v, r_on, seated), pin.seat_charge + q,
             pin.seat_square + sq)
 
 

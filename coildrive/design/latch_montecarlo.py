@@ -26,9 +26,8 @@ import dataclasses
 import numpy as np
 
 from ..config import Drive
-from ..model.rl import decay_time
-from .latch import (LatchDesign, Points, after_seat, plain_pulse, pulse_loop, release_loop,
-                    rise_current_at, seat_run, table_lengths, winding_drive)
+from .latch import (LatchDesign, Points, plain_pulse, pulse_loop, release_loop, rise_current_at,
+                    seat_run, seated_pulse, table_lengths, time_to_zero, winding_drive)
 from .montecarlo import CHUNK, PERCENTILES, factors, summary
 from .supply import rise_time
 
@@ -51,9 +50,9 @@ def _figures(wd: Drive, pts: Points, current: float, t_short, t_long) -> tuple:
         seated = (pin.status == 0) & (pin.seat_time <= t_long)
         t_req = np.where(pin.status == 0, pin.seat_time, np.inf)
         i_end = pin.peak_end_current
-        i_top, q_on, _ = after_seat(pin, p, t_long, lp.v_on, lp.r_on)
+        i_top, q_on, _ = seated_pulse(wd, lp, pts, pin, p, t_long)
         i_top, q_on = np.where(seated, i_top, np.nan), np.where(seated, q_on, np.nan)
-    return (t_req, i_end, lp.v_on * q_on, decay_time(0.0, i_top, rel.r_off, rel.v_off, lp.inductance))
+    return (t_req, i_end, lp.v_on * q_on, time_to_zero(wd, lp, rel, i_top))
 
 
 def with_monte_carlo(d: LatchDesign, samples: int, seed: int = 1) -> LatchDesign:

@@ -263,13 +263,10 @@ def eddy_decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e) -> FastDecay
                      v_end, q_a + np.where(blocked, c * (v_end - v_a), 0.0))
 
 
-def decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, l, v_d) -> FastDecay:
-    """:func:`decay` on a supply that cannot sink (module docstring): with the source
-    until the bus reaches ``v_s`` V, then the series RLC circuit into ``C`` alone.
-    ``bus_max`` is the bus when the current stops (or ``v_s``, which a bus that never got
-    there relaxes back to)."""
-    i0, v0, i_drop, v_s, r_s, c, r, l, v_d = np.broadcast_arrays(
-        *(np.asarray(x, float) for x in (i0, v0, i_drop, v_s, r_s, c, r, l, v_d)))
+def _fed_stretch(i0, v0, i_drop, v_s, r_s, c, r, l, v_d):
+    """A supply that cannot sink: the stretch with the source (phase A, until the bus
+    reaches ``v_s`` or the current stops): ``(A, i_ss, the fed decay's FastDecay, blocked
+    (the feed blocks before the current stops), (t_a s, i_a A, v_a V) at its end, at)``."""
     a, _, _, i_ss, at = _fed(i0, v0, v_s, r_s, c, r, l, v_d)
     fed = decay(i0, v0, i_drop, v_s, r_s, c, r, l, v_d)
     # phase A reaches V_s where its bus top, before the current stops, is above it
@@ -284,9 +281,40 @@ def decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, l, v_d) -> FastDecay:
     t_a = np.where(v0 >= v_s, 0.0, np.where(reach, hi_t, fed.zero_time))
     i_a = np.where(v0 >= v_s, i0, np.where(reach, at(t_a)[0], 0.0))
     v_a = np.where(blocked, np.maximum(v0, v_s), fed.bus_at_zero)
+    return a, i_ss, fed, blocked, (t_a, i_a, v_a), at
+
+
+def trace(t, i0, v0, v_s, r_s, c, r, l, v_d, sink: bool = True):
+    """The current (A) and the bus (V) ``t`` s (an array) into the fast decay of one point
+    from ``i0`` A and the bus at ``v0`` V (:func:`decay`, or :func:`decay_no_sink` without
+    ``sink``), up to the current's zero: the same closed forms (with the source, then the
+    series RLC circuit into ``C`` alone once the feed blocks). Past the zero the current is
+    0 and the bus is left where it was (the caller ends there)."""
+    t = np.asarray(t, float)
+    point = [np.asarray(x, float) for x in (i0, v0, 0.0, v_s, r_s, c, r, l, v_d)]
+    if sink:
+        _, _, _, _, at = _fed(point[0], point[1], *point[3:])
+        i, v = at(t)
+        return np.maximum(i, 0.0), v
+    _, _, fed, blocked, (t_a, i_a, v_a), at = _fed_stretch(*point)
+    i_fed, v_fed = at(np.minimum(t, t_a))
+    a_b = c * (v_a + 2.0 * v_d)
+    x, i_b = rlc.state(np.maximum(t - t_a, 0.0), a_b, np.where(blocked, i_a, 1.0), r, l, c)
+    late = blocked & (t > t_a)
+    return np.maximum(np.where(late, i_b, i_fed), 0.0), np.where(late, v_a + (x - a_b) / c, v_fed)
+
+
+def decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, l, v_d) -> FastDecay:
+    """:func:`decay` on a supply that cannot sink (module docstring): with the source
+    until the bus reaches ``v_s`` V, then the series RLC circuit into ``C`` alone.
+    ``bus_max`` is the bus when the current stops (or ``v_s``, which a bus that never got
+    there relaxes back to)."""
+    i0, v0, i_drop, v_s, r_s, c, r, l, v_d = np.broadcast_arrays(
+        *(np.asarray(x, float) for x in (i0, v0, i_drop, v_s, r_s, c, r, l, v_d)))
+    a, i_ss, fed, blocked, (t_a, i_a, v_a), _ = _fed_stretch(i0, v0, i_drop, v_s, r_s, c, r, l, v_d)
     det = a[0] * a[3] - a[1] * a[2]
     q_a = i_ss * t_a + (a[3] * (i_a - i0) - a[1] * (v_a - v0)) / det
-    q_a = np.where(v0 >= v_s, 0.0, np.where(reach, q_a, fed.charge))
+    q_a = np.where(v0 >= v_s, 0.0, np.where(blocked, q_a, fed.charge))   # (below v_s: blocked = reached it)
     # phase B: x = q + C (v_a + 2 V_d), x(0) = a_b, x'(0) = i_a (model/rlc.py)
     a_b = c * (v_a + 2.0 * v_d)
     i_b = np.where(blocked, i_a, 1.0)

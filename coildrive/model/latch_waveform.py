@@ -15,7 +15,9 @@ Q4, - reset through Q3 + Q2); each switch's drain-source voltage is a column (``
 ``q4_v``). After a pulse all four are off and the current flows into the bus through two
 body diodes (``-V_d`` across each, ``V_bus + V_d`` across the other two); with no current
 both legs are drawn at 0 V (they float: a real bridge's leg voltages then depend on its
-gate drivers' leakage). Two windings: one current, coil voltage and switch voltage column
+gate drivers' leakage). On the drooping bus the current returns into the bus behind the
+source resistance, which rises as it does (:func:`fast_decay_after`, :func:`fast_trace`:
+:mod:`coildrive.model.bus_decay`, closed form). Two windings: one current, coil voltage and switch voltage column
 per winding; the windings' magnetic coupling is not modelled (each decays through its own
 freewheel path).
 
@@ -30,7 +32,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..config import Drive
-from . import eddy, flux_bus
+from . import bus_decay, eddy, flux_bus
 from . import supply as bus_model
 from .eddy import EddyCoil
 from .circuit import full_bridge, loop
@@ -83,9 +85,8 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
     r_e = float(np.ravel(ind.resistance)[0]) if isinstance(ind, EddyCoil) else None
     t_on = np.linspace(0.0, t_pulse, points + 1)
     gap_on = None
-    if drive.armature is not None:   # the set pulse moves the armature; config: no droop then
-        t_on, i_on, gap_on = _seating(drive, lp, l_factor, t_pulse, points, supply, coil_temp)
-        bus = np.full(t_on.shape, v)
+    if drive.armature is not None:   # the set pulse moves the armature (a drooping bus: a state of its run)
+        t_on, i_on, gap_on, bus = _seating(drive, lp, l_factor, t_pulse, points, supply, coil_temp)
     elif drive.supply.droops:
         s = drive.supply
         mag = ind.magnetising if r_e is not None else ind
@@ -99,9 +100,17 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
         i_on, bus = rise_current(t_on, 0.0, v, r_on, ind), np.full(t_on.shape, v)
     i_top = float(i_on[-1])
     r_off, v_off = float(rel.r_off), float(rel.v_off)
-    tz = float(decay_time(0.0, i_top, r_off, v_off, ind))
-    t_d = np.linspace(0.0, tz, points + 1)[1:]
-    i_d = np.maximum(decay_current(t_d, i_top, r_off, v_off, ind), 0.0)
+    fast = fast_decay_after(drive, rel, i_top, float(bus[-1]))
+    if fast is None:
+        tz = float(decay_time(0.0, i_top, r_off, v_off, ind))
+        t_d = np.linspace(0.0, tz, points + 1)[1:]
+        i_d = np.maximum(decay_current(t_d, i_top, r_off, v_off, ind), 0.0)
+        bus_d = np.full(t_d.size, supply)
+    else:   # a bridge's fast decay into the drooping bus: the bus rises as the current returns
+        tz = float(fast.zero_time)
+        t_d = np.linspace(0.0, tz, points + 1)[1:]
+        i_d, bus_d = fast_trace(drive, rel, i_top, float(bus[-1]), t_d)
+        i_d[-1] = 0.0   # (the zero, to rounding)
     if r_e is not None:   # the magnetising currents to the terminal current (model.eddy): on, then freewheeling
         i_on = eddy.terminal(i_on, bus, r_on, r_e)
         i_d = np.maximum(eddy.terminal(i_d, -v_off, r_off, r_e), 0.0)
@@ -109,23 +118,51 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
     i = np.concatenate([i_on, i_d])
     on = np.concatenate([np.ones(t_on.size), np.zeros(t_d.size)])
     gap = None if gap_on is None else np.concatenate([gap_on, np.zeros(t_d.size)])
-    return t, i, on, np.concatenate([bus, np.full(t_d.size, supply)]), t_pulse + tz, rel, gap
+    return t, i, on, np.concatenate([bus, bus_d]), t_pulse + tz, rel, gap
+
+
+def _fast_args(drive: Drive, rel, i0: float, v0: float) -> tuple:
+    s = drive.supply
+    return (i0, v0, *(float(np.ravel(x)[0]) for x in (rel.supply, s.source_resistance, s.capacitance, rel.r_off,
+                                                      rel.inductance, rel.diode(drive))))
+
+
+def fast_decay_after(drive: Drive, rel, i0: float, v0: float, i_drop: float = 0.0):
+    """A full bridge's fast decay of ``i0`` A into the drooping bus from the bus at ``v0`` V
+    at the pulse's end (:func:`coildrive.model.bus_decay.decay`, or ``decay_no_sink``):
+    its :class:`~coildrive.model.bus_decay.FastDecay` (``drop_time`` to ``i_drop`` A), or
+    ``None`` off a bridge or on a stiff bus. ``rel``: the fast decay's loop (a linear coil)."""
+    if not (drive.supply.droops and full_bridge(drive)):
+        return None
+    a = _fast_args(drive, rel, i0, v0)
+    fast = bus_decay.decay if drive.supply.sink else bus_decay.decay_no_sink
+    return fast(a[0], a[1], i_drop, *a[2:])
+
+
+def fast_trace(drive: Drive, rel, i0: float, v0: float, t):
+    """The current A and the bus V ``t`` s into :func:`fast_decay_after`'s decay
+    (:func:`coildrive.model.bus_decay.trace`)."""
+    return bus_decay.trace(t, *_fast_args(drive, rel, i0, v0), sink=drive.supply.sink)
 
 
 def _seating(drive: Drive, lp, l_factor: float, t_pulse: float, points: int, supply: float,
              coil_temp: float):
     """The set pulse with a moving armature (:func:`coildrive.model.armature_sim.simulate`
-    from rest at the open stop): ``(t, i, gap)``. The armature must rest on the seat when the
-    pulse ends (the catch then holds it, and the decay is the seated coil's);
-    :class:`NotSeated` otherwise."""
+    from rest at the open stop; on a drooping bus from a full capacitor, a state of the
+    run): ``(t, i, gap, bus)``. The armature must rest on the seat when the pulse ends (the
+    catch then holds it, and the decay is the seated coil's); :class:`NotSeated` otherwise."""
     from .armature import params_from_loop
     from .armature_sim import simulate
 
-    tr = simulate(params_from_loop(drive.armature, lp, l_factor), [(t_pulse, True, points)], points=points)
+    s = drive.supply
+    bus = (s.source_resistance, s.capacitance) if s.droops else (0.0, 0.0)
+    tr = simulate(params_from_loop(drive.armature, lp, l_factor, bus=bus), [(t_pulse, True, points)],
+                  points=points)
     if tr.state != "seated":
         raise NotSeated(f"the armature is not on the seat when the set pulse ends at {supply:g} V, coil "
                          f"{coil_temp:g} degC, so the catch would not hold it")
-    return tr.time, tr.current, tr.position
+    return tr.time, tr.current, tr.position, (np.full(tr.time.shape, float(lp.v_on)) if tr.bus is None
+                                              else tr.bus)
 
 
 def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float,
