@@ -1489,7 +1489,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     diode/zener/resistor freewheel (split decay too) or a clamp across a low-side or a
     high-side switch, a stiff or a drooping main supply (the main bus feeds the hold from
     the hand-over: :func:`coildrive.design.supply.handover_bus`; not with an eddy term or a
-    full bridge), a PWM
+    full bridge; with a moving armature the hold's flight on it, not with a clamp), a PWM
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
     mode), a peak that ends at its threshold. A moving armature
     (:mod:`coildrive.model.armature_boost`): a linear coil (an eddy term too), a
@@ -1522,8 +1522,10 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = "hold.mode", ("a latching coil (set and reset pulses from the boost would each end at a "
                                  "current threshold of their own, with the boost switch in the latch "
                                  "driver and its device: not built yet)")
-    elif armature is not None and supply.droops:
-        key, why = "supply.source_resistance", "a drooping main supply and a moving armature together"
+    elif armature is not None and supply.droops and freewheel.type == "clamp":
+        key, why = "freewheel.type", ("a drooping main supply, a moving armature and a clamp across the "
+                                      "switch together (the clamp's off-times draw from the bus while the "
+                                      "armature may be in flight)")
     elif armature is not None and armature.restitution > 0:
         key, why = "armature.restitution", ("a moving armature that bounces off the seat (the end current's "
                                             "bound holds while the armature closes or rests)")
@@ -1545,7 +1547,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "high-side switch or a "
                          "full bridge, a "
                          "diode/zener/resistor freewheel (split decay too) or a clamp, a stiff "
-                         "main supply (or a drooping one: a linear coil on one switch, no [armature]), a "
+                         "main supply (or a drooping one: a linear coil on one switch; with [armature] no "
+                         "clamp), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
                          "with [armature]: no restitution, no mixed decay, no [duty] with an eddy term")
 

@@ -29,3 +29,20 @@ def equations(g: dict):
         return lam * lam * beta / (2 * lc)
 
     return cur, opening, pull
+
+
+def current_form(g: dict):
+    """``(L(x) H, dL/dx H/m, opening force(x) N)`` of one point ``g``: the equations in the
+    current, ``L(x) di/dt = V - R i - i L'(x) v`` with the pull ``-i^2 L'(x) / 2``."""
+    lc, beta, stroke = g["l_closed"], g["beta"], g["stroke"]
+
+    def ind(x):
+        return lc / (1 + beta * x)
+
+    def slope(x):
+        return -lc * beta / (1 + beta * x) ** 2
+
+    def opening(x):
+        return g["preload"] + g["rate"] * (stroke - x) + g["load"]
+
+    return ind, slope, opening

@@ -32,6 +32,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from armature_equations import current_form
 from conftest import EXAMPLES, run_cli
 
 from coildrive.model.armature import SEATED, TRIPPED, ArmatureParams
@@ -61,17 +62,9 @@ def reference(g: dict, v_b: float, c_b: float, r_b: float, trip: float, duty: fl
     threshold is on the terminal current and the capacitor feeds it."""
     from scipy.integrate import solve_ivp
 
-    lc, beta, s = g["l_closed"], g["beta"], g["stroke"]
+    s = g["stroke"]
     r_boost = g["r_on"] + r_b
-
-    def ind(x):
-        return lc / (1 + beta * x)
-
-    def slope(x):
-        return -lc * beta / (1 + beta * x) ** 2
-
-    def opening(x):
-        return g["preload"] + g["rate"] * (s - x) + g["load"]
+    ind, slope, opening = current_form(g)
 
     def loop(mode, y):
         """(the inductance's voltage V, the terminal current A) in ``mode``."""

@@ -20,6 +20,18 @@ with an eddy term the terminal current, what the sense sees):
   stiff boost at full charge (while the armature stands or closes its motional term only
   holds the current back, and ``L(x) >= L_open``), so that bounds the end current and, with
   the capacitor's state at the trip, the energy drawn.
+
+On a drooping main supply (``source_resistance``, a linear coil on one switch) the hold runs
+on the main bus from the hand-over, its capacitor a state of the flight
+(:func:`~coildrive.model.armature_boost.boosted_pull_in` with ``bus0``: the source's voltage,
+nothing drew from it during the peak), with the boost converter's draw from the hand-over
+on taken as the still coil's (:func:`coildrive.design.supply.converter_current` at the
+larger of the most current at the hand-over and the hold's top: the source ``V_s - R_s
+I_conv``). So the pull-in run's seat includes the droop, and with a voltage-mode PWM hold
+the lowest bus is the lower of two runs' (:func:`coildrive.design.supply.armature_bus`): the pull-in's (the
+earliest hand-over) and a fifth, the most current (the boost at its highest until the
+current reaches the most the peak can end with, ``end_current`` -- where that run never
+gets there, the highest trip current -- then the hold on the bus).
 """
 
 from __future__ import annotations
@@ -50,7 +62,13 @@ class BoostRuns:
     the threshold. ``end_current``: the most current at the end of the peak (a bound),
     ``end_boost`` the boost at full charge then (V);
     ``energy``: the most the boost gives in one peak (J). ``duty``: the hold's duty the
-    pull-in ran with (its reuse key). ``window``: the seat's window (s from switch-on)."""
+    pull-in ran with (its reuse key). ``window``: the seat's window (s from switch-on).
+    ``end_time``: the end of the peak with the most current (s from switch-on; ``inf``
+    where never). ``most``: on a drooping main supply under a voltage-mode PWM hold, the
+    run handed over at the most current (:func:`coildrive.design.supply.armature_bus`), else ``None``.
+    On a drooping main supply ``slow`` and ``most`` carry the lowest bus up to the seat
+    only (their orbits: :func:`coildrive.design.supply.armature_bus`); ``hold_params`` and ``period`` are the hold's
+    points and period (s) they ran with."""
 
     slow: PullInBatch
     long_time: np.ndarray
@@ -61,6 +79,10 @@ class BoostRuns:
     energy: np.ndarray
     duty: np.ndarray
     window: float
+    end_time: np.ndarray | None = None
+    most: PullInBatch | None = None
+    hold_params: ArmatureParams | None = None
+    period: np.ndarray | None = None
 
 
 def _boost(drive: Drive, p: ArmatureParams, high: bool) -> ArmatureParams:
@@ -108,13 +130,43 @@ def runs(drive: Drive, p: ArmatureParams, duty, period, i_top, thresholds: tuple
     long_time, _, low_boost, energy_low = _end(drive, low, pull_in(low, trip=i_trip), i_trip)
     finite = long_time[np.isfinite(long_time)]
     until = drive.pull_in.margin * (float(np.max(finite)) if finite.size else 0.0)
-    slow = boosted_pull_in(low, p, i_th, duty, period, until, i_top)
+    end_time, end_current, end_boost, energy_high = _end(drive, high, pull_in(high, trip=i_trip), i_trip)
+    p_hold, bus0 = main_bus(drive, p, np.maximum(end_current, i_top))
+    slow = boosted_pull_in(low, p_hold, i_th, duty, period, until, i_top, bus0=bus0, orbit=False)
     fast_time = pull_in(high, trip=i_th).trip_time
-    _, end_current, end_boost, energy_high = _end(drive, high, pull_in(high, trip=i_trip), i_trip)
+    most = None
+    if p.droops and pwm_on_bus(drive):   # the hand-over at the most current, onto the bus
+        most = boosted_pull_in(high, p_hold, np.where(np.isfinite(end_time), end_current, i_trip), duty, period,
+                               until, i_top, bus0=bus0, orbit=False)
     slow = replace(slow, peak_end_current=end_current)
     return BoostRuns(slow=slow, long_time=long_time, low_boost=low_boost, fast_time=fast_time,
                      end_current=end_current, end_boost=end_boost, energy=np.fmax(energy_low, energy_high),
-                     duty=np.broadcast_to(np.asarray(duty, float), (len(p),)).copy(), window=until)
+                     duty=np.broadcast_to(np.asarray(duty, float), (len(p),)).copy(), window=until,
+                     end_time=end_time, most=most, hold_params=p_hold,
+                     period=np.broadcast_to(np.asarray(period, float), (len(p),)).copy())
+
+
+def pwm_on_bus(drive: Drive) -> bool:
+    """Whether the hold after the hand-over is a fixed-duty PWM whose off-times draw nothing
+    from the bus (voltage mode, fixed or a supply table; no clamp across the switch): then
+    the drooping bus is run exactly (:func:`coildrive.design.supply.armature_bus`); else
+    :func:`coildrive.design.supply.handover_bus` takes its floor."""
+    return (drive.hold.mode == "voltage" and drive.hold.regulation != "closed_loop"
+            and drive.freewheel.type != "clamp")
+
+
+def main_bus(drive: Drive, p: ArmatureParams, i_top) -> tuple[ArmatureParams, np.ndarray]:
+    """``(the hold's points, the bus at the hand-over V)``: on a drooping main supply the
+    source behind ``R_s`` less the boost converter's draw from the hand-over on (a constant
+    current, :func:`coildrive.design.supply.converter_current` with the coil at most
+    ``i_top`` A: ``V_s - R_s I_conv``), the bus starting at ``V_s``; on a stiff one ``p``
+    itself."""
+    if not p.droops:
+        return p, p.v_on
+    from .supply import converter_current
+
+    i_conv = converter_current(drive, p.v_on, np.where(np.isfinite(i_top), i_top, 0.0))
+    return replace(p, v_on=p.v_on - drive.supply.source_resistance * i_conv), p.v_on.copy()
 
 
 def peak_heat(drive: Drive, lp, peak_time) -> np.ndarray:
@@ -163,8 +215,10 @@ def sampled_pull_in(drive: Drive, res, v_factor, c_factor, duty, timeout):
     pb = boost_params(p, s.boost * np.asarray(v_factor, float), s.boost_capacitance * np.asarray(c_factor, float),
                       s.boost_resistance)
     per_point = (lambda x: np.ravel(np.broadcast_to(np.asarray(x, float), (n,))))
-    pin = boosted_pull_in(pb, p, threshold(drive)[0], per_point(duty), per_point(res.hold.period),
-                          per_point(timeout), per_point(res.hold.i_max))
+    top = per_point(res.hold.i_max)
+    p_hold, bus0 = main_bus(drive, p, np.maximum(res.armature.boost.end_current, top))
+    pin = boosted_pull_in(pb, p_hold, threshold(drive)[0], per_point(duty), per_point(res.hold.period),
+                          per_point(timeout), top, bus0=bus0, orbit=False)
     return replace(res, pull_in_time=pin.seat_time.reshape(np.shape(res.pull_in_time)))
 
 

@@ -88,6 +88,12 @@ def steady_current(drive: Drive, lp) -> np.ndarray:
 HANDOVER_PWM = ("the hold's PWM from the hand-over on the drooping bus, exact period by period "
                 "until its orbit repeats (each on-time the bus and coil circuit in closed form; "
                 "where it has not within 5000 periods, the floor below)")
+#: ... with a moving armature: its runs on the bus (design/boost_armature.py).
+HANDOVER_ARMATURE = ("the armature's runs from the hand-over on the drooping bus, its capacitor a state "
+                     "of the flight until the seat, then the seated coil's PWM exact period by period "
+                     "until its orbit repeats; the lower of the pull-in's (the earliest hand-over) and "
+                     "the most current's (where an orbit has not repeated within 5000 periods, the "
+                     "floor below)")
 #: ... where the hold's switching is not a fixed PWM, or a clamp draws in its off-times.
 HANDOVER_FLOOR = ("a floor: the source through R_s carries every draw from the hand-over on "
                   "(the coil at most max(hand-over current, hold top), the boost converter)")
@@ -107,6 +113,21 @@ def converter_current(drive: Drive, v_s, i_top) -> np.ndarray:
     disc = np.maximum(head**2 - 4.0 * s.source_resistance * p, 0.0)
     v_f = 0.5 * (head + np.sqrt(disc))
     return p / np.maximum(v_f, 1e-9)
+
+
+def armature_bus(runs) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """``(lowest main bus V, when s from switch-on, settled)`` per point after a moving
+    armature's boosted peak (its runs, :class:`~coildrive.design.boost_armature.BoostRuns`,
+    on a drooping main supply under a voltage-mode PWM hold): the lower of the pull-in
+    run's and the most-current run's (each through its flight on the bus, then the seated
+    coil's PWM until its orbit repeats, :func:`coildrive.model.armature_boost.with_orbit`;
+    ``settled`` False where a run's had not)."""
+    from ..model.armature_boost import with_orbit
+
+    a, b = (with_orbit(runs.hold_params, r, runs.duty, runs.period) for r in (runs.slow, runs.most))
+    lower = b.lowest_bus < a.lowest_bus
+    return (np.where(lower, b.lowest_bus, a.lowest_bus), np.where(lower, b.lowest_bus_time, a.lowest_bus_time),
+            a.bus_settled & b.bus_settled)
 
 
 def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.ndarray, str]:
@@ -129,10 +150,22 @@ def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.nd
     the bus instead
     (:func:`coildrive.model.supply.bus_floor` with the coil at most the larger of the
     hand-over current and the hold's top, plus the converter): a bound, lower than the
-    bus goes."""
+    bus goes.
+
+    With a moving armature (its runs, :mod:`coildrive.design.boost_armature`) the
+    hand-over current is the runs' most current at the end of the peak, and under a
+    voltage-mode PWM hold the lowest bus is the runs' on the bus
+    (:func:`armature_bus`: the armature in flight through
+    the hold, then seated), the floor where an orbit had not repeated."""
     s = drive.supply
     lp = res.loop
-    t_hand, i_hand = boost.handover(drive, lp)
+    runs = None if res.armature is None else res.armature.boost
+    if runs is None:
+        t_hand, i_hand = boost.handover(drive, lp)
+    else:
+        shape = np.shape(lp.v_on)
+        i_hand = runs.end_current.reshape(shape)
+        t_hand = np.where(np.isfinite(runs.end_time), runs.end_time, 0.0).reshape(shape)
     top = getattr(res.hold, "terminal_max", None)
     top = np.maximum(i_hand, res.hold.i_max if top is None else top)
     top = np.where(np.isfinite(top), top, i_hand)
@@ -142,6 +175,10 @@ def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.nd
              and not through_clamp(drive))
     if not exact:
         return np.minimum(floor, lp.v_on), t_hand, i_hand, HANDOVER_FLOOR
+    if runs is not None:
+        v_low, when, settled = (x.reshape(np.shape(lp.v_on)) for x in armature_bus(runs))
+        tail = ~settled & (floor < v_low)
+        return np.where(tail, floor, v_low), np.where(tail, t_hand, when), i_hand, HANDOVER_ARMATURE
     b = bus_model.bus(lp.v_on - s.source_resistance * i_conv, s.source_resistance, s.capacitance,
                       lp.r_on, lp.inductance)
     v_low, when, settled = bus_model.hold_from(b, i_hand, lp.v_on, duty, res.hold.period, lp.r_off, lp.v_off)
