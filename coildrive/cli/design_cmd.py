@@ -225,8 +225,10 @@ def simulate_command(
             status("armature: not seated by the end of the peak at this point")
         if w.bus_voltage is not None:
             k = int(w.bus_voltage.argmin())
-            status(f"bus: lowest {float(w.bus_voltage[k]):.4g} V at {float(w.time[k]) * 1e3:.4g} ms in the "
-                   "peak (the drooping bus; the hold and release on the stiff supply; column bus_v)")
+            where = ("after the boost's hand-over (the drooping main bus through the hold and release; "
+                     "column bus_v)" if d.boost is not None else
+                     "in the peak (the drooping bus; the hold and release on the stiff supply; column bus_v)")
+            status(f"bus: lowest {float(w.bus_voltage[k]):.4g} V at {float(w.time[k]) * 1e3:.4g} ms {where}")
     if plot is not None:
         from ..design.plot import plot_actuation
         write_atomic(plot, plot_actuation(d, w, f"{d.drive.name} on {d.drive.board.name}: simulated at "

@@ -101,18 +101,10 @@ HANDOVER_FLOOR = ("a floor: the source through R_s carries every draw from the h
 
 def converter_current(drive: Drive, v_s, i_top) -> np.ndarray:
     """The most current (A) the boost converter draws from the main bus while it recharges,
-    drawing ``supply.converter_draw`` W (``P``) as the coil draws at most ``i_top`` A: at
-    the bus's floor ``v_f``, the larger root of ``v_f^2 - (V_s - R_s i_top) v_f + R_s P =
-    0`` (below it the source behind ``R_s`` gives more than the coil and the converter
-    take, so the bus never gets there: ``P / v`` <= ``P / v_f``). A source that cannot
-    carry it (no real root) has the bus at the root's double point, half of ``V_s - R_s
-    i_top``."""
+    drawing ``supply.converter_draw`` W as the coil draws at most ``i_top`` A
+    (:func:`coildrive.model.supply.converter_current`)."""
     s = drive.supply
-    p = s.converter_draw
-    head = np.asarray(v_s, float) - s.source_resistance * np.asarray(i_top, float)
-    disc = np.maximum(head**2 - 4.0 * s.source_resistance * p, 0.0)
-    v_f = 0.5 * (head + np.sqrt(disc))
-    return p / np.maximum(v_f, 1e-9)
+    return bus_model.converter_current(v_s, s.source_resistance, s.converter_draw, i_top)
 
 
 def armature_bus(runs) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
