@@ -1496,7 +1496,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     voltage-mode hold (fixed or supply table; on a full bridge slow decay, no mixed decay;
     or the closed loop) or a current-mode hold -- the two regulated ones where the design
     finds the armature seated within the peak at every corner
-    (:func:`coildrive.design.boost_armature.require_seated_in_peak`), an inelastic seat (no restitution), an on/off cycle without an eddy term
+    (:func:`coildrive.design.boost_armature.require_seated_in_peak`), a bouncing seat (``restitution``) without an
+    eddy term (the conversion after the threshold flown: :func:`coildrive.model.armature_boost.window_flight`),
+    an on/off cycle without an eddy term
     (the peak's heat is the run's copper integral: :func:`coildrive.design.boost_armature.peak_heat`).
     Anything else is refused in one line."""
     if not supply.boosted:
@@ -1526,9 +1528,10 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = "freewheel.type", ("a drooping main supply, a moving armature and a clamp across the "
                                       "switch together (the clamp's off-times draw from the bus while the "
                                       "armature may be in flight)")
-    elif armature is not None and armature.restitution > 0:
-        key, why = "armature.restitution", ("a moving armature that bounces off the seat (the end current's "
-                                            "bound holds while the armature closes or rests)")
+    elif armature is not None and armature.restitution > 0 and coil.eddy_resistance:
+        key, why = "armature.restitution", ("a moving armature that bounces off the seat and an eddy-current "
+                                            "term together (the end current's window is flown for a plain coil "
+                                            "only)")
     elif armature is not None and hold.fast_fraction > 0:
         key, why = "hold.fast_fraction", "a moving armature and a full bridge's mixed-decay hold together"
     elif armature is not None and duty is not None and coil.eddy_resistance:
@@ -1550,7 +1553,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "main supply (or a drooping one: a linear coil on one switch; with [armature] no "
                          "clamp), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
-                         "with [armature]: no restitution, no mixed decay, no [duty] with an eddy term")
+                         "with [armature]: no mixed decay, no restitution or [duty] with an eddy term")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,

@@ -268,8 +268,8 @@ def test_simulate_runs_the_peak_from_the_boost_and_the_armature_onto_the_seat(tm
 
 
 def test_what_stays_refused_is_refused_in_one_line(tmp_path):
-    """A bouncing armature, an on/off cycle with an eddy term and a full bridge's mixed decay
-    stay refused with a moving armature on the boosted peak: one line
+    """A bouncing armature with an eddy term, an on/off cycle with an eddy term and a full
+    bridge's mixed decay stay refused with a moving armature on the boosted peak: one line
     naming the key (exit 2)."""
     from coildrive.config import load_drive
     from coildrive.errors import InputError
@@ -282,7 +282,8 @@ def test_what_stays_refused_is_refused_in_one_line(tmp_path):
         + '\n[duty]\non_time = "5 ms"\noff_time = "20 ms"\n',
     }
     bridge = Path(_on_bridge(tmp_path)).read_text()
-    cases["armature.restitution"] = text.replace('damping = "1 N*s/m"', 'damping = "1 N*s/m"\nrestitution = 0.3')
+    cases["armature.restitution"] = text.replace('damping = "1 N*s/m"', 'damping = "1 N*s/m"\nrestitution = 0.3').replace(
+        "inductance_tolerance = 0.10", 'inductance_tolerance = 0.10\neddy_resistance = "200 ohm"')
     cases["hold.fast_fraction"] = bridge.replace('frequency = "60 kHz"', 'frequency = "60 kHz"\nfast_fraction = 0.3')
     for want, body in cases.items():
         path = tmp_path / "x.toml"

@@ -38,7 +38,7 @@ import math
 import numpy as np
 import pytest
 
-from armature_equations import current_form
+from armature_equations import boosted_events, boosted_rhs
 from conftest import EXAMPLES, run_cli
 # the example's hot 9 V corner, its boost at the low end, a 20 kHz hold at duty 0.75
 from test_boost_armature import BETA, BOOST, DUTY, EXAMPLE, LC, PERIOD, POINT
@@ -58,39 +58,16 @@ def reference(g: dict, boost: tuple, r_s: float, c_bus: float, trip: float, duty
     default ``g["v_on"]``, at which the bus starts)."""
     from scipy.integrate import solve_ivp
 
-    v_b, c_b, r_b = boost
+    v_b = boost[0]
     s = g["stroke"]
     v_src = g["v_on"] if v_src is None else v_src
     if peak is not None:
         trip = math.inf
-    ind, slope, opening = current_form(g)
-
-    def rhs(mode, free):
-        def f(_t, y):
-            i, x, v, u = y
-            if mode == "boost":
-                v_l, du = u - (g["r_on"] + r_b) * i, -i / c_b
-            elif mode == "on":
-                v_l, du = u - g["r_on"] * i, ((v_src - u) / r_s - i) / c_bus
-            else:
-                v_l = -(g["r_off"] * i + g["v_off"]) if i > 0 else 0.0
-                du = (v_src - u) / r_s / c_bus
-            if not free:
-                return [v_l / ind(x), 0.0, 0.0, du]
-            di = (v_l - i * slope(x) * v) / ind(x)
-            acc = (opening(x) + 0.5 * i * i * slope(x) - g["damping"] * v) / g["mass"]
-            return [di, v, acc, du]
-        return f
+    rhs = boosted_rhs(g, boost, (r_s, c_bus, v_src))
 
     opts = dict(method="DOP853", rtol=1e-11, atol=1e-14)
 
-    def start(_t, y):
-        return -0.5 * y[0] ** 2 * slope(s) - opening(s)
-    start.terminal, start.direction = True, 1
-
-    def at_trip(_t, y):
-        return y[0] - trip
-    at_trip.terminal, at_trip.direction = True, 1
+    start, at_trip = boosted_events(g, trip)
 
     def seat(_t, y):
         return y[1]

@@ -330,6 +330,50 @@ def _alone(pj: ArmatureParams, t0: float, y0, duty: float, period: float, bound:
         res["seat_bus"][j] = float(tr.bus[-1]) if seated else math.nan
 
 
+def window_flight(p: ArmatureParams, pin: PullInBatch, dt: float, rtol: float = 1e-7):
+    """The ``dt`` s after a :func:`~coildrive.model.armature_runs.pull_in` run's trip (the
+    boost still on: the conversion in which the firmware may see the threshold), flown
+    where the armature is in flight at the trip (status TRIPPED, speed not 0) -- its
+    bounces on the seat followed as in the pull-in -- until it comes to rest at a stop or
+    the window ends. With a bouncing seat (``restitution``) the rebound's motional term
+    drives the current up, so no closed-form bound holds over the window while the armature
+    may move away from the seat; at rest, or closing, the open coil's rise bounds the rest.
+
+    Returns ``(flown, highest A, t s, y)`` per point: where flown, the highest coil current
+    over the flight (at its accepted steps and its end) and the time and state (rows of the
+    run) where it stopped (the window's end, or a rest); elsewhere the trip's."""
+    n = len(p)
+    hit = np.isfinite(pin.trip_time)
+    t = np.where(hit, pin.trip_time, 0.0)
+    y = np.where(hit, pin.trip_state, 0.0)
+    flown = hit & (pin.status == TRIPPED) & (y[2] != 0.0)
+    i_now = p.current(y[0], y[1])
+    peak = np.stack([i_now, t])
+    t_end = t + dt
+    active = flown.copy()
+    on = np.ones(n, bool)
+    stiff = is_stiff(p, p.opening_force(p.stroke))
+    lam_stay = p.flux_closed(p.stay_current)
+    impact = np.array(pin.impact_speed, float)       # (the run's first impact, as the pull-in's)
+    bounces = np.array(pin.bounces, int)
+    for _ in range(4 * MAX_BOUNCES):
+        if not active.any():
+            break
+        fl = fly_mixed(p, t, y, t_end, active, on, on, stiff, rtol, track=active.copy(), peak=peak)
+        t = np.where(active, fl.t, t)
+        y = np.where(active, fl.y, y)
+        seat = active & (fl.end == SEAT)
+        impact = np.where(seat & np.isnan(impact), -y[2], impact)
+        rebound = p.restitution * np.abs(y[2])
+        bounce = seat & (rebound >= REST_FRACTION * impact) & (bounces < MAX_BOUNCES) & (rebound > 0)
+        bounces += bounce
+        opn = active & (fl.end == OPEN)
+        y[2] = np.where(bounce, rebound, np.where(seat | opn, 0.0, y[2]))
+        lifts = seat & ~bounce & (y[0] < lam_stay)   # (too little flux to stay: flies on)
+        active &= bounce | lifts
+    return flown, np.maximum(peak[0], p.current(y[0], y[1])), t, y
+
+
 def seated_in_peak(pin: PullInBatch) -> np.ndarray:
     """Where the armature of a :func:`boosted_pull_in` rests on the seat by the end of the
     peak (the threshold), as opposed to in the hold."""
