@@ -1494,14 +1494,18 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     high-side switch, a stiff or a drooping main supply (the main bus feeds the hold from
     the hand-over: :func:`coildrive.design.supply.handover_bus`, a linear coil, a curve or
     an eddy term; on a full bridge, a linear coil, every turn-off's fast decay returns
-    into it, the boost converter idle or drawing: :mod:`coildrive.design.bridge_bus`), a PWM
+    into it, the boost converter idle or drawing: :mod:`coildrive.design.bridge_bus`; with
+    a moving armature, a linear coil on one switch without a clamp, the hold's flight on
+    it), a PWM
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
     mode), a peak that ends at its threshold. A moving armature
     (:mod:`coildrive.model.armature_boost`): a linear coil (an eddy term too), a
     voltage-mode hold (fixed or supply table; on a full bridge slow decay, no mixed decay;
     or the closed loop) or a current-mode hold -- the two regulated ones where the design
     finds the armature seated within the peak at every corner
-    (:func:`coildrive.design.boost_armature.require_seated_in_peak`), an inelastic seat (no restitution), an on/off cycle without an eddy term
+    (:func:`coildrive.design.boost_armature.require_seated_in_peak`), a bouncing seat (``restitution``) without an
+    eddy term (the conversion after the threshold flown: :func:`coildrive.model.armature_boost.window_flight`),
+    an on/off cycle without an eddy term
     (the peak's heat is the run's copper integral: :func:`coildrive.design.boost_armature.peak_heat`).
     Anything else is refused in one line."""
     if not supply.boosted:
@@ -1522,11 +1526,18 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = "hold.mode", ("a latching coil (set and reset pulses from the boost would each end at a "
                                  "current threshold of their own, with the boost switch in the latch "
                                  "driver and its device: not built yet)")
-    elif armature is not None and supply.droops:
-        key, why = "supply.source_resistance", "a drooping main supply and a moving armature together"
-    elif armature is not None and armature.restitution > 0:
-        key, why = "armature.restitution", ("a moving armature that bounces off the seat (the end current's "
-                                            "bound holds while the armature closes or rests)")
+    elif armature is not None and supply.droops and (coil.eddy_resistance or switch.topology == "full_bridge"):
+        key, why = "supply.source_resistance", ("a drooping main supply and a moving armature with an eddy-current "
+                                                "term or on a full bridge (the hold's flight on the bus is a plain "
+                                                "coil's on one switch)")
+    elif armature is not None and supply.droops and freewheel.type == "clamp":
+        key, why = "freewheel.type", ("a drooping main supply, a moving armature and a clamp across the "
+                                      "switch together (the clamp's off-times draw from the bus while the "
+                                      "armature may be in flight)")
+    elif armature is not None and armature.restitution > 0 and coil.eddy_resistance:
+        key, why = "armature.restitution", ("a moving armature that bounces off the seat and an eddy-current "
+                                            "term together (the end current's window is flown for a plain coil "
+                                            "only)")
     elif armature is not None and hold.fast_fraction > 0:
         key, why = "hold.fast_fraction", "a moving armature and a full bridge's mixed-decay hold together"
     elif armature is not None and duty is not None and coil.eddy_resistance:
@@ -1545,9 +1556,10 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "high-side switch or a "
                          "full bridge, a "
                          "diode/zener/resistor freewheel (split decay too) or a clamp, a stiff "
-                         "main supply (or a drooping one: no [armature]; on a full bridge a linear coil), a "
+                         "main supply (or a drooping one; on a full bridge a linear coil; "
+                         "with [armature] a linear coil on one switch, no clamp), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
-                         "with [armature]: no restitution, no mixed decay, no [duty] with an eddy term")
+                         "with [armature]: no mixed decay, no restitution or [duty] with an eddy term")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,

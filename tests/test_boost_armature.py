@@ -32,6 +32,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from armature_equations import current_form
 from conftest import EXAMPLES, run_cli
 
 from coildrive.model.armature import SEATED, TRIPPED, ArmatureParams
@@ -61,17 +62,9 @@ def reference(g: dict, v_b: float, c_b: float, r_b: float, trip: float, duty: fl
     threshold is on the terminal current and the capacitor feeds it."""
     from scipy.integrate import solve_ivp
 
-    lc, beta, s = g["l_closed"], g["beta"], g["stroke"]
+    s = g["stroke"]
     r_boost = g["r_on"] + r_b
-
-    def ind(x):
-        return lc / (1 + beta * x)
-
-    def slope(x):
-        return -lc * beta / (1 + beta * x) ** 2
-
-    def opening(x):
-        return g["preload"] + g["rate"] * (s - x) + g["load"]
+    ind, slope, opening = current_form(g)
 
     def loop(mode, y):
         """(the inductance's voltage V, the terminal current A) in ``mode``."""
@@ -275,8 +268,8 @@ def test_simulate_runs_the_peak_from_the_boost_and_the_armature_onto_the_seat(tm
 
 
 def test_what_stays_refused_is_refused_in_one_line(tmp_path):
-    """A bouncing armature, an on/off cycle with an eddy term and a full bridge's mixed decay
-    stay refused with a moving armature on the boosted peak: one line
+    """A bouncing armature with an eddy term, an on/off cycle with an eddy term and a full
+    bridge's mixed decay stay refused with a moving armature on the boosted peak: one line
     naming the key (exit 2)."""
     from coildrive.config import load_drive
     from coildrive.errors import InputError
@@ -289,7 +282,8 @@ def test_what_stays_refused_is_refused_in_one_line(tmp_path):
         + '\n[duty]\non_time = "5 ms"\noff_time = "20 ms"\n',
     }
     bridge = Path(_on_bridge(tmp_path)).read_text()
-    cases["armature.restitution"] = text.replace('damping = "1 N*s/m"', 'damping = "1 N*s/m"\nrestitution = 0.3')
+    cases["armature.restitution"] = text.replace('damping = "1 N*s/m"', 'damping = "1 N*s/m"\nrestitution = 0.3').replace(
+        "inductance_tolerance = 0.10", 'inductance_tolerance = 0.10\neddy_resistance = "200 ohm"')
     cases["hold.fast_fraction"] = bridge.replace('frequency = "60 kHz"', 'frequency = "60 kHz"\nfast_fraction = 0.3')
     for want, body in cases.items():
         path = tmp_path / "x.toml"

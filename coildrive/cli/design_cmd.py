@@ -226,15 +226,19 @@ def simulate_command(
         if w.bus_voltage is not None:
             k = int(w.bus_voltage.argmin())
             where = "the hold and release on the stiff supply"
-            if d.drive.switch.topology == "full_bridge":   # the release returns into the bus
+            if d.boost is not None:
+                where = ("after the boost's hand-over (the drooping main bus through the hold and release; "
+                         "column bus_v)")
+            elif d.drive.switch.topology == "full_bridge":   # the release returns into the bus
                 import numpy as np
 
                 after = w.time > w.events["off"]
                 j = int(np.flatnonzero(after)[np.argmax(w.bus_voltage[after])])
                 where = (f"the hold on the stiff supply, the release back into the bus: highest "
                          f"{float(w.bus_voltage[j]):.4g} V at {float(w.time[j]) * 1e3:.4g} ms")
-            status(f"bus: lowest {float(w.bus_voltage[k]):.4g} V at {float(w.time[k]) * 1e3:.4g} ms in the "
-                   f"peak (the drooping bus; {where}; column bus_v)")
+            if d.boost is None:
+                where = f"in the peak (the drooping bus; {where}; column bus_v)"
+            status(f"bus: lowest {float(w.bus_voltage[k]):.4g} V at {float(w.time[k]) * 1e3:.4g} ms {where}")
     if plot is not None:
         from ..design.plot import plot_actuation
         write_atomic(plot, plot_actuation(d, w, f"{d.drive.name} on {d.drive.board.name}: simulated at "

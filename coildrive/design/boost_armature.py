@@ -20,6 +20,18 @@ with an eddy term the terminal current, what the sense sees):
   stiff boost at full charge (while the armature stands or closes its motional term only
   holds the current back, and ``L(x) >= L_open``), so that bounds the end current and, with
   the capacitor's state at the trip, the energy drawn.
+
+On a drooping main supply (``source_resistance``, a linear coil on one switch) the hold runs
+on the main bus from the hand-over, its capacitor a state of the flight
+(:func:`~coildrive.model.armature_boost.boosted_pull_in` with ``bus0``: the source's voltage,
+nothing drew from it during the peak), with the boost converter's draw from the hand-over
+on taken as the still coil's (:func:`coildrive.design.supply.converter_current` at the
+larger of the most current at the hand-over and the hold's top: the source ``V_s - R_s
+I_conv``). So the pull-in run's seat includes the droop, and with a voltage-mode PWM hold
+the lowest bus is the lower of two runs' (:func:`coildrive.design.supply.armature_bus`): the pull-in's (the
+earliest hand-over) and a fifth, the most current (the boost at its highest until the
+current reaches the most the peak can end with, ``end_current`` -- where that run never
+gets there, the highest trip current -- then the hold on the bus).
 """
 
 from __future__ import annotations
@@ -31,7 +43,7 @@ import numpy as np
 from ..config import Drive
 from ..errors import InputError
 from ..model.armature import ArmatureParams, params_from_loop
-from ..model.armature_boost import boost_energy, boost_params, boosted_pull_in, seated_in_peak
+from ..model.armature_boost import boost_energy, boost_params, boosted_pull_in, seated_in_peak, window_flight
 from ..model.armature_runs import PullInBatch, pull_in
 from ..model.circuit import Loop
 from ..model.rl import rise_current
@@ -50,7 +62,13 @@ class BoostRuns:
     the threshold. ``end_current``: the most current at the end of the peak (a bound),
     ``end_boost`` the boost at full charge then (V);
     ``energy``: the most the boost gives in one peak (J). ``duty``: the hold's duty the
-    pull-in ran with (its reuse key). ``window``: the seat's window (s from switch-on)."""
+    pull-in ran with (its reuse key). ``window``: the seat's window (s from switch-on).
+    ``end_time``: the end of the peak with the most current (s from switch-on; ``inf``
+    where never). ``most``: on a drooping main supply under a voltage-mode PWM hold, the
+    run handed over at the most current (:func:`coildrive.design.supply.armature_bus`), else ``None``.
+    On a drooping main supply ``slow`` and ``most`` carry the lowest bus up to the seat
+    only (their orbits: :func:`coildrive.design.supply.armature_bus`); ``hold_params`` and ``period`` are the hold's
+    points and period (s) they ran with."""
 
     slow: PullInBatch
     long_time: np.ndarray
@@ -61,6 +79,10 @@ class BoostRuns:
     energy: np.ndarray
     duty: np.ndarray
     window: float
+    end_time: np.ndarray | None = None
+    most: PullInBatch | None = None
+    hold_params: ArmatureParams | None = None
+    period: np.ndarray | None = None
 
 
 def _boost(drive: Drive, p: ArmatureParams, high: bool) -> ArmatureParams:
@@ -77,21 +99,36 @@ def _end(drive: Drive, pb: ArmatureParams, pin: PullInBatch, i_trip: float):
     boost's voltage bounds the current over it (with an eddy term the magnetising current's
     rise through the loop's Thevenin pair, and the terminal current ``(V_b + R_e i_m)/(R +
     R_e)`` from it); the capacitor gives at most that current.
+    With a bouncing seat (``restitution``; no eddy term) a rebound's motional term drives the
+    current up past that rise: where the armature is in flight at the trip the window is
+    flown, bounces and all (:func:`~coildrive.model.armature_boost.window_flight`), to its
+    end or until the armature rests at a stop, and the open coil's rise bounds only the rest
+    of it, from the current and the capacitor there; the most current is the larger of the
+    flight's highest and that rise's end.
     Where the trip never comes: ``inf``, ``i_trip``, the boost's full voltage, NaN."""
     dt = conversion_period(drive)
+    n = len(pb)
     hit = np.isfinite(pin.trip_time)
     y = np.where(hit, pin.trip_state, 0.0)
+    rest, i_from, top = np.full(n, dt), np.full(n, float(i_trip)), np.zeros(n)
+    if pb.eddy is None and np.any(pb.restitution > 0):
+        flown, high, t_f, y_f = window_flight(pb, pin, dt)
+        y = np.where(flown, y_f, y)
+        i_from = np.where(flown, pb.current(y_f[0], y_f[1]), i_from)
+        rest = np.where(flown, np.maximum(np.where(hit, pin.trip_time, 0.0) + dt - t_f, 0.0), rest)
+        top = np.where(flown, high, top)
     if pb.eddy is None:
-        i_end = rise_current(dt, i_trip, pb.v_on, pb.r_on, pb.l_open)
+        i_rise = rise_current(rest, i_from, pb.v_on, pb.r_on, pb.l_open)
+        i_end = np.maximum(i_rise, top)
     else:   # the magnetising current's bound (its Thevenin rise), then the terminal current's
         i_m = rise_current(dt, pb.current(y[0], y[1]), pb.v_on, pb.r_on, pb.coil_open)
-        i_end = np.maximum((pb.v_on + pb.eddy * i_m) / (pb.r_on + pb.eddy), i_trip)
+        i_end = i_rise = np.maximum((pb.v_on + pb.eddy * i_m) / (pb.r_on + pb.eddy), i_trip)
     if pb.droops:
-        u = y[5] - i_end * dt / pb.capacitance
+        u = y[5] - i_rise * rest / pb.capacitance
         y = np.concatenate([y[:5], u[None]])
     else:
         u = pb.v_on.copy()
-        y = np.concatenate([y[:3], (y[3] + i_end * dt)[None], y[4:5]])
+        y = np.concatenate([y[:3], (y[3] + i_rise * rest)[None], y[4:5]])
     nan = np.full(len(pb), np.nan)
     # (where the trip never comes the current stays below it; the boost no higher than full)
     return (np.where(hit, pin.trip_time + dt, np.inf), np.where(hit, i_end, i_trip),
@@ -108,13 +145,43 @@ def runs(drive: Drive, p: ArmatureParams, duty, period, i_top, thresholds: tuple
     long_time, _, low_boost, energy_low = _end(drive, low, pull_in(low, trip=i_trip), i_trip)
     finite = long_time[np.isfinite(long_time)]
     until = drive.pull_in.margin * (float(np.max(finite)) if finite.size else 0.0)
-    slow = boosted_pull_in(low, p, i_th, duty, period, until, i_top)
+    end_time, end_current, end_boost, energy_high = _end(drive, high, pull_in(high, trip=i_trip), i_trip)
+    p_hold, bus0 = main_bus(drive, p, np.maximum(end_current, i_top))
+    slow = boosted_pull_in(low, p_hold, i_th, duty, period, until, i_top, bus0=bus0, orbit=False)
     fast_time = pull_in(high, trip=i_th).trip_time
-    _, end_current, end_boost, energy_high = _end(drive, high, pull_in(high, trip=i_trip), i_trip)
+    most = None
+    if p.droops and pwm_on_bus(drive):   # the hand-over at the most current, onto the bus
+        most = boosted_pull_in(high, p_hold, np.where(np.isfinite(end_time), end_current, i_trip), duty, period,
+                               until, i_top, bus0=bus0, orbit=False)
     slow = replace(slow, peak_end_current=end_current)
     return BoostRuns(slow=slow, long_time=long_time, low_boost=low_boost, fast_time=fast_time,
                      end_current=end_current, end_boost=end_boost, energy=np.fmax(energy_low, energy_high),
-                     duty=np.broadcast_to(np.asarray(duty, float), (len(p),)).copy(), window=until)
+                     duty=np.broadcast_to(np.asarray(duty, float), (len(p),)).copy(), window=until,
+                     end_time=end_time, most=most, hold_params=p_hold,
+                     period=np.broadcast_to(np.asarray(period, float), (len(p),)).copy())
+
+
+def pwm_on_bus(drive: Drive) -> bool:
+    """Whether the hold after the hand-over is a fixed-duty PWM whose off-times draw nothing
+    from the bus (voltage mode, fixed or a supply table; no clamp across the switch): then
+    the drooping bus is run exactly (:func:`coildrive.design.supply.armature_bus`); else
+    :func:`coildrive.design.supply.handover_bus` takes its floor."""
+    return (drive.hold.mode == "voltage" and drive.hold.regulation != "closed_loop"
+            and drive.freewheel.type != "clamp")
+
+
+def main_bus(drive: Drive, p: ArmatureParams, i_top) -> tuple[ArmatureParams, np.ndarray]:
+    """``(the hold's points, the bus at the hand-over V)``: on a drooping main supply the
+    source behind ``R_s`` less the boost converter's draw from the hand-over on (a constant
+    current, :func:`coildrive.design.supply.converter_current` with the coil at most
+    ``i_top`` A: ``V_s - R_s I_conv``), the bus starting at ``V_s``; on a stiff one ``p``
+    itself."""
+    if not p.droops:
+        return p, p.v_on
+    from .supply import converter_current
+
+    i_conv = converter_current(drive, p.v_on, np.where(np.isfinite(i_top), i_top, 0.0))
+    return replace(p, v_on=p.v_on - drive.supply.source_resistance * i_conv), p.v_on.copy()
 
 
 def peak_heat(drive: Drive, lp, peak_time) -> np.ndarray:
@@ -163,8 +230,10 @@ def sampled_pull_in(drive: Drive, res, v_factor, c_factor, duty, timeout):
     pb = boost_params(p, s.boost * np.asarray(v_factor, float), s.boost_capacitance * np.asarray(c_factor, float),
                       s.boost_resistance)
     per_point = (lambda x: np.ravel(np.broadcast_to(np.asarray(x, float), (n,))))
-    pin = boosted_pull_in(pb, p, threshold(drive)[0], per_point(duty), per_point(res.hold.period),
-                          per_point(timeout), per_point(res.hold.i_max))
+    top = per_point(res.hold.i_max)
+    p_hold, bus0 = main_bus(drive, p, np.maximum(res.armature.boost.end_current, top))
+    pin = boosted_pull_in(pb, p_hold, threshold(drive)[0], per_point(duty), per_point(res.hold.period),
+                          per_point(timeout), top, bus0=bus0, orbit=False)
     return replace(res, pull_in_time=pin.seat_time.reshape(np.shape(res.pull_in_time)))
 
 

@@ -93,6 +93,12 @@ def steady_current(drive: Drive, lp) -> np.ndarray:
 HANDOVER_PWM = ("the hold's PWM from the hand-over on the drooping bus, exact period by period "
                 "until its orbit repeats (each on-time the bus and coil circuit in closed form; "
                 "where it has not within 5000 periods, the floor below)")
+#: ... with a moving armature: its runs on the bus (design/boost_armature.py).
+HANDOVER_ARMATURE = ("the armature's runs from the hand-over on the drooping bus, its capacitor a state "
+                     "of the flight until the seat, then the seated coil's PWM exact period by period "
+                     "until its orbit repeats; the lower of the pull-in's (the earliest hand-over) and "
+                     "the most current's (where an orbit has not repeated within 5000 periods, the "
+                     "floor below)")
 #: ... where the hold's switching is not a fixed PWM, or a clamp draws in its off-times.
 HANDOVER_FLOOR = ("a floor: the source through R_s carries every draw from the hand-over on "
                   "(the coil at most the largest of the hand-over current, its first on-time "
@@ -107,18 +113,25 @@ HANDOVER_PULSES = ("a floor: the bus driven from the hand-over on by the coil's 
 
 def converter_current(drive: Drive, v_s, i_top) -> np.ndarray:
     """The most current (A) the boost converter draws from the main bus while it recharges,
-    drawing ``supply.converter_draw`` W (``P``) as the coil draws at most ``i_top`` A: at
-    the bus's floor ``v_f``, the larger root of ``v_f^2 - (V_s - R_s i_top) v_f + R_s P =
-    0`` (below it the source behind ``R_s`` gives more than the coil and the converter
-    take, so the bus never gets there: ``P / v`` <= ``P / v_f``). A source that cannot
-    carry it (no real root) has the bus at the root's double point, half of ``V_s - R_s
-    i_top``."""
+    drawing ``supply.converter_draw`` W as the coil draws at most ``i_top`` A
+    (:func:`coildrive.model.supply.converter_current`)."""
     s = drive.supply
-    p = s.converter_draw
-    head = np.asarray(v_s, float) - s.source_resistance * np.asarray(i_top, float)
-    disc = np.maximum(head**2 - 4.0 * s.source_resistance * p, 0.0)
-    v_f = 0.5 * (head + np.sqrt(disc))
-    return p / np.maximum(v_f, 1e-9)
+    return bus_model.converter_current(v_s, s.source_resistance, s.converter_draw, i_top)
+
+
+def armature_bus(runs) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """``(lowest main bus V, when s from switch-on, settled)`` per point after a moving
+    armature's boosted peak (its runs, :class:`~coildrive.design.boost_armature.BoostRuns`,
+    on a drooping main supply under a voltage-mode PWM hold): the lower of the pull-in
+    run's and the most-current run's (each through its flight on the bus, then the seated
+    coil's PWM until its orbit repeats, :func:`coildrive.model.armature_boost.with_orbit`;
+    ``settled`` False where a run's had not)."""
+    from ..model.armature_boost import with_orbit
+
+    a, b = (with_orbit(runs.hold_params, r, runs.duty, runs.period) for r in (runs.slow, runs.most))
+    lower = b.lowest_bus < a.lowest_bus
+    return (np.where(lower, b.lowest_bus, a.lowest_bus), np.where(lower, b.lowest_bus_time, a.lowest_bus_time),
+            a.bus_settled & b.bus_settled)
 
 
 def _pwm_hold(drive: Drive) -> bool:
@@ -177,18 +190,30 @@ def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.nd
     form: stepping the thousands of them to the orbit is the cost this avoids) takes the
     tighter floor of that most current drawn in the on-times only
     (:func:`coildrive.model.supply.pulse_floor`, the converter's constant draw lowering its
-    source)."""
+    source).
+
+    With a moving armature (its runs, :mod:`coildrive.design.boost_armature`) the
+    hand-over current is the runs' most current at the end of the peak, and under a
+    voltage-mode PWM hold the lowest bus is the runs' on the bus
+    (:func:`armature_bus`: the armature in flight through
+    the hold, then seated), the floor where an orbit had not repeated."""
     s = drive.supply
     lp = res.loop
-    t_hand, i_hand = boost.handover(drive, lp)
-    i_m, known = boost.handover_magnetising(drive, lp, t_hand)
+    runs = None if res.armature is None else res.armature.boost
+    if runs is None:
+        t_hand, i_hand = boost.handover(drive, lp)
+        i_m, known = boost.handover_magnetising(drive, lp, t_hand)
+    else:
+        shape = np.shape(lp.v_on)
+        i_hand = runs.end_current.reshape(shape)
+        t_hand = np.where(np.isfinite(runs.end_time), runs.end_time, 0.0).reshape(shape)
     top = getattr(res.hold, "terminal_max", None)
     # (with an eddy term both tops: the on-times draw the terminal current, a clamp's
     # off-times at most the magnetising current, R_e i_m/(R_off + R_e))
     top = np.maximum(i_hand, res.hold.i_max if top is None else np.maximum(top, res.hold.i_max))
     top = np.where(np.isfinite(top), top, i_hand)
     pwm = _pwm_hold(drive)
-    if pwm:
+    if pwm and runs is None:   # (an armature's runs take the hold's flight on the bus below)
         top = np.maximum(top, _first_on_top(drive, lp, np.where(known, i_m, i_hand), duty, res.hold.period))
     i_conv = converter_current(drive, lp.v_on, top)
     floor = bus_model.bus_floor(lp.v_on, s.source_resistance, top + i_conv)
@@ -201,6 +226,10 @@ def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.nd
         v_low = bus_model.pulse_floor(lp.v_on - s.source_resistance * i_conv, s.source_resistance,
                                       s.capacitance, top, duty, res.hold.period)
         return np.minimum(v_low, lp.v_on), t_hand, i_hand, HANDOVER_PULSES
+    if runs is not None:
+        v_low, when, settled = (x.reshape(np.shape(lp.v_on)) for x in armature_bus(runs))
+        tail = ~settled & (floor < v_low)
+        return np.where(tail, floor, v_low), np.where(tail, t_hand, when), i_hand, HANDOVER_ARMATURE
     b = bus_model.bus(lp.v_on - s.source_resistance * i_conv, s.source_resistance, s.capacitance,
                       lp.r_on, ind, r_e)
     v_low, when, settled = bus_model.hold_from(b, np.where(known, i_m, 0.0), lp.v_on, duty, res.hold.period,

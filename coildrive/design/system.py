@@ -1059,14 +1059,18 @@ def _refuse(system: System, ch) -> None:
     current-mode one, or a latching coil, or a boosted peak. Anything else is refused in
     one line: a curve with a moving armature (the closing armature's current is not proved
     to stay under the open curve's rise, docs/design-method.md, "A flux-linkage curve"), a
-    boosted peak with an eddy term, and a boosted peak without ``supply.boost_efficiency``
-    (its converter's draw)."""
+    boosted peak with an eddy term or a bouncing armature (``restitution``: a rebound's
+    motional term drives the current past the boost's rise, :func:`_boost_keys`), and a
+    boosted peak without ``supply.boost_efficiency`` (its converter's draw)."""
     d = ch.drive
     why = None
     if d.coil.flux_current and d.armature is not None:
         key, why = "armature", "a moving armature with a flux-linkage curve"
     elif d.supply.boosted and d.coil.eddy_resistance:
         key, why = "supply.boost", "a boosted peak with an eddy-current term"
+    elif d.supply.boosted and d.armature is not None and d.armature.restitution > 0:
+        key, why = "armature.restitution", ("a boosted peak with a bouncing armature (a rebound drives the "
+                                            "current past the boost's rise the rail's bound takes)")
     elif d.supply.boosted and not d.supply.boost_efficiency > 0:
         raise InputError(d.source, "supply.boost_efficiency", f"missing: channel {ch.name!r} of {system.source} "
                          "has a boosted peak, whose converter draws from the shared rail, expected its efficiency "
@@ -1076,7 +1080,7 @@ def _refuse(system: System, ch) -> None:
                          "in a system yet; expected a linear coil (with an [armature], an eddy term or both) "
                          "or a flux-linkage curve (no [armature]), one switch or a full bridge and a voltage-mode "
                          "fixed, supply-table, closed-loop or current-mode hold, or a latching coil; a boosted "
-                         "peak without an eddy term")
+                         "peak without an eddy term or a bouncing armature")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:

@@ -22,6 +22,17 @@ boosted peak over the envelope -- flying a weak hold's slow approach edge by edg
 the mechanics' own time bound would cost minutes over the envelope, and an armature that
 is not seated by then fails the design anyway).
 
+On a drooping main supply (``p_hold.droops``: ``source_resistance`` and ``capacitance``
+behind the hold's switch) the main bus feeds the hold from the hand-over on, its bulk
+capacitor a sixth state of the flight (:class:`~coildrive.model.armature_flight._Rhs`:
+``C du/dt = (V_s - u)/R_s - i`` while the switch is on, the freewheel path drawing nothing),
+starting at ``bus0`` (the source's voltage: the main supply's diode blocked during the
+peak, nothing drew from it); the lowest bus is tracked through the flight, and from the
+seat on (or from the hand-over, where the armature seated within the peak) the seated
+coil's PWM on the bus is exact period by period
+(:func:`coildrive.model.supply.state_from`, :func:`~coildrive.model.supply.lowest_from`,
+:func:`~coildrive.model.supply.hold_from`) until its orbit repeats.
+
 Energy: the boost gives ``1/2 C_b (V_b^2 - u^2)`` (an ideal boost ``V_b int i dt``),
 which is the field's energy plus the loop's ``R int i^2 dt`` plus the mechanical work
 (the armature's kinetic energy, the spring's and the load's, the damping's heat).
@@ -40,10 +51,16 @@ from .armature import (BOUND, MAX_BOUNCES, OPEN, REST_FRACTION, SEAT, SEATED, ST
                        ArmatureParams)
 from .armature_flight import fly_mixed, is_stiff
 from .armature_runs import PullInBatch, pull_in
+from . import supply as bus_model
+from .rl import decay_current
 
 #: Most PWM edges the hold after the threshold is followed through (never hang; the time
 #: bound ends it first at any frequency the timer makes in practice).
 MAX_EDGES = 200_000
+#: Samples per segment of a drooping bus's hold run through
+#: :func:`~coildrive.model.armature_sim.simulate` (an armature that fell back to the open
+#: stop and may start again: its lowest bus is taken at them).
+BUS_SAMPLES = 16
 
 
 def boost_params(p: ArmatureParams, v_b, c_b, r_b) -> ArmatureParams:
@@ -75,7 +92,7 @@ def hold_schedule(t0: float, t_end: float, duty: float, period: float) -> list:
 
 
 def boosted_pull_in(p_boost: ArmatureParams, p_hold: ArmatureParams, trip, duty, period, until,
-                    i_top=None, rtol: float = 1e-7) -> PullInBatch:
+                    i_top=None, rtol: float = 1e-7, bus0=None, orbit: bool = True) -> PullInBatch:
     """Switch-on from rest: the boost (``p_boost``, :func:`boost_params`) until the current
     reaches ``trip`` A, then the hold (``p_hold``: the main supply's loop, ``duty`` and
     ``period`` s per point) until the armature seats, or ``until`` s after switch-on (per
@@ -85,36 +102,120 @@ def boosted_pull_in(p_boost: ArmatureParams, p_hold: ArmatureParams, trip, duty,
     The result is :func:`~coildrive.model.armature_runs.pull_in`'s with ``trip_time`` and
     ``trip_state`` the threshold's moment (the end of the peak), and where that came
     before the seat the hold's outcome in ``status`` (SEATED or STALLED), ``seat_time``,
-    ``seat_current``, ``impact_time``, ``dip_current`` (the current at the impact, in the
+    ``seat_current``, ``seat_charge``, ``seat_square``, ``impact_time``, ``dip_current`` (the current at the impact, in the
     hold) and ``stall_gap`` (where it was at ``until``: ``bound``). ``i_top`` (A per point): the hold's highest current (its
     steady ripple top); where the armature falls back to the open stop with ``i_top``
     below its start current it stays there (STALLED at the full stroke).
+
+    On a drooping main supply (``p_hold.droops``; ``p_hold.v_on`` the source's voltage) the
+    hold runs on the main bus from ``bus0`` V at the hand-over (per point; default the
+    source's), and ``lowest_bus``, ``lowest_bus_time`` (s from switch-on) are the bus's
+    lowest from the hand-over until the seat and then on the seated coil's PWM until its
+    orbit repeats (``bus_settled``: False where it had not within
+    :data:`~coildrive.model.supply.HOLD_PERIODS_MAX` periods; then the lowest so far), or
+    until ``until`` where the armature is not seated by then (module docstring). Where the
+    threshold never comes the main bus is not drawn: ``bus0`` itself, at 0 s.
+    ``orbit`` False: the lowest bus only up to the seat (``bus_settled`` ``None``;
+    :func:`with_orbit` completes it), for runs that need the seat alone.
     """
     n = len(p_hold)
     pin = pull_in(p_boost, trip=trip, rtol=rtol)
     out = {k: np.array(getattr(pin, k), copy=True) for k in
            ("status", "seat_time", "seat_current", "impact_time", "impact_speed", "dip_current",
-            "dip_time", "stall_gap", "bound", "bounces", "steps")}
+            "dip_time", "stall_gap", "bound", "bounces", "steps", "seat_charge", "seat_square")}
+    per_point = (lambda x: np.broadcast_to(np.asarray(x, float), (n,)))
+    droop = p_hold.droops
+    u0 = per_point(p_hold.v_on if bus0 is None else bus0).astype(float)
+    in_peak = seated_in_peak_of(pin.status, pin.seat_time, pin.trip_time)
+    seat_bus = np.where(in_peak, u0, np.nan)
+    low = np.stack([u0, np.where(np.isfinite(pin.trip_time), pin.trip_time, 0.0)])
     k = np.flatnonzero(pin.status == TRIPPED)
     if k.size:
-        top = np.full(n, np.inf) if i_top is None else np.broadcast_to(np.asarray(i_top, float), (n,))
-        got = _hold_flights(p_hold.take(k), pin.trip_time[k], pin.trip_state[:5, k],
-                            np.broadcast_to(np.asarray(duty, float), (n,))[k],
-                            np.broadcast_to(np.asarray(period, float), (n,))[k],
-                            np.broadcast_to(np.asarray(until, float), (n,))[k], top[k], rtol)
+        top = np.full(n, np.inf) if i_top is None else per_point(i_top)
+        y0 = pin.trip_state[:5, k]
+        if droop:
+            y0 = np.concatenate([y0, u0[None, k]])
+        got = _hold_flights(p_hold.take(k), pin.trip_time[k], y0, per_point(duty)[k], per_point(period)[k],
+                            per_point(until)[k], top[k], rtol)
+        if droop:
+            seat_bus[k] = got.pop("seat_bus")
+            low[:, k] = got.pop("low")
         for name, value in got.items():
             out[name][k] = value
-    return dataclasses.replace(pin, **out)
+    if not droop:
+        return dataclasses.replace(pin, **out)
+    run = dataclasses.replace(pin, **out, lowest_bus=low[0], lowest_bus_time=low[1], seat_bus=seat_bus)
+    return with_orbit(p_hold, run, duty, period) if orbit else run
+
+
+def with_orbit(p_hold: ArmatureParams, run: PullInBatch, duty, period) -> PullInBatch:
+    """A :func:`boosted_pull_in` run on the drooping main bus made with ``orbit=False``
+    (its lowest bus up to the seat) completed: from the seat on -- from the hand-over where
+    it seated within the peak -- the seated coil's PWM on the bus
+    (:func:`seated_hold_bus`) until its orbit repeats, into ``lowest_bus``,
+    ``lowest_bus_time`` and ``bus_settled``. ``p_hold``, ``duty``, ``period``: the run's."""
+    n = len(p_hold)
+    per_point = (lambda x: np.broadcast_to(np.asarray(x, float), (n,)))
+    low = np.stack([run.lowest_bus, run.lowest_bus_time]).astype(float)
+    settled = np.ones(n, bool)
+    in_peak = seated_in_peak(run)
+    j = np.flatnonzero(run.status == SEATED)
+    if j.size:   # from the seat on (seated in the peak: from the hand-over), closed form
+        ph = p_hold.take(j)
+        t_from = np.where(in_peak[j], run.trip_time[j], run.seat_time[j])
+        i_from = np.where(in_peak[j], ph.current(run.trip_state[0, j], 0.0), run.seat_current[j])
+        v, when, settled[j] = seated_hold_bus(ph, run.trip_time[j], t_from, i_from, run.seat_bus[j],
+                                              per_point(duty)[j], per_point(period)[j])
+        lower = v < low[0, j]
+        low[0, j] = np.where(lower, v, low[0, j])
+        low[1, j] = np.where(lower, when, low[1, j])
+    return dataclasses.replace(run, lowest_bus=low[0], lowest_bus_time=low[1], bus_settled=settled)
+
+
+def seated_in_peak_of(status, seat_time, trip_time) -> np.ndarray:
+    """Where a run's armature rests on the seat by the threshold (:func:`seated_in_peak`)."""
+    return (status == SEATED) & (seat_time <= trip_time)
+
+
+def seated_hold_bus(p: ArmatureParams, t_hand, t_seat, i_seat, u_seat, duty, period):
+    """``(lowest bus V, when s, settled)`` of the voltage-mode PWM hold on the drooping bus
+    (the points of ``p``: the hold's loop and bus) with the armature at rest on the seat
+    from ``t_seat`` s on, the coil carrying ``i_seat`` A and the bus at ``u_seat`` V then;
+    the hold's periods of ``period`` s (on for ``duty`` of each) count from the hand-over
+    at ``t_hand`` s. The rest of the period the seat came in (its on-time on the bus,
+    :func:`~coildrive.model.supply.lowest_from`; its off-time the coil's own RL decay while
+    the bus recovers through ``R_s``), then :func:`~coildrive.model.supply.hold_from` from
+    the next period's start until the orbit repeats. ``when`` from switch-on."""
+    b = p.bus(False)
+    t_on = duty * period
+    phase = np.maximum(t_seat - t_hand, 0.0)
+    start = t_hand + np.floor(phase / period * (1.0 + 1e-15)) * period   # this period's start
+    on = t_seat < start + t_on
+    dt_on = np.where(on, start + t_on - t_seat, 0.0)
+    v_low, t_low = bus_model.lowest_from(dt_on, b, i_seat, u_seat)
+    when = t_seat + t_low
+    i1, u1 = bus_model.state_from(dt_on, b, i_seat, u_seat)
+    i1, u1 = np.where(on, i1, i_seat), np.where(on, u1, u_seat)
+    t_next = start + period
+    dt_off = np.maximum(t_next - np.maximum(t_seat, start + t_on), 0.0)
+    i2 = decay_current(dt_off, i1, p.r_off, p.v_off, p.l_closed)
+    u2 = b.v_s + (u1 - b.v_s) * np.exp(-dt_off / (p.source_resistance * p.capacitance))
+    v_h, t_h, settled = bus_model.hold_from(b, i2, u2, duty, period, p.r_off, p.v_off)
+    lower = v_h < v_low
+    return np.where(lower, v_h, v_low), np.where(lower, t_next + t_h, when), settled
 
 
 def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: float) -> dict:
     """The hold after the threshold for points whose armature is open or in flight there
-    (``t0`` s, states ``y0``: lambda, x, v, q, sq) until ``until`` s, all at once: the batched flight
+    (``t0`` s, states ``y0``: lambda, x, v, q, sq, and on a drooping main bus its capacitor
+    u V) until ``until`` s, all at once: the batched flight
     (:func:`~coildrive.model.armature_flight.fly_mixed`) from PWM edge to PWM edge, the
     seat's bounces as in :func:`~coildrive.model.armature_runs.pull_in`; a point resting
     on the open stop whose hold could start it again (``i_top`` above its start current)
     goes on alone through :func:`~coildrive.model.armature_sim.simulate`. Returns the
-    :class:`PullInBatch` fields of :func:`boosted_pull_in`."""
+    :class:`PullInBatch` fields of :func:`boosted_pull_in`; on a drooping bus also
+    ``seat_bus`` (V at the seat, NaN where not seated) and ``low`` (2 x N: the lowest bus V
+    and when, s, up to the seat or ``until``)."""
     n = len(p)
     t = np.asarray(t0, float).copy()
     y = np.asarray(y0, float).copy()
@@ -127,7 +228,12 @@ def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: f
     res = dict(status=np.full(n, STALLED), seat_time=np.full(n, np.inf), seat_current=nan.copy(),
                impact_time=nan.copy(), impact_speed=nan.copy(), dip_current=nan.copy(),
                dip_time=nan.copy(), stall_gap=nan.copy(), bound=bound, bounces=np.zeros(n, int),
-               steps=np.zeros(n, int))
+               steps=np.zeros(n, int), seat_charge=nan.copy(), seat_square=nan.copy())
+    droop = p.droops
+    if droop:
+        res["seat_bus"] = nan.copy()
+        res["low"] = np.stack([y[5].copy(), t.copy()])
+    track = dict(low=res["low"], low_until=np.full(n, np.inf)) if droop else {}
     # resting on the open stop at the threshold (it came before the motion): free once
     # the flux passes the start current's (the flight's own first step sees to that)
     on = np.ones(n, bool)
@@ -139,7 +245,7 @@ def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: f
     for _ in range(MAX_EDGES):
         if not active.any():
             break
-        fl = fly_mixed(p, t, y, edge, active, on, live, stiff, rtol)
+        fl = fly_mixed(p, t, y, edge, active, on, live, stiff, rtol, **track)
         res["steps"] += np.where(active, fl.steps, 0)
         t = np.where(active, fl.t, t)
         y = np.where(active, fl.y, y)
@@ -158,6 +264,10 @@ def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: f
         res["status"] = np.where(holds, SEATED, res["status"])
         res["seat_time"] = np.where(holds, t, res["seat_time"])
         res["seat_current"] = np.where(holds, p.current(y[0], 0.0), res["seat_current"])
+        res["seat_charge"] = np.where(holds, y[3], res["seat_charge"])
+        res["seat_square"] = np.where(holds, y[4], res["seat_square"])
+        if droop:
+            res["seat_bus"] = np.where(holds, y[5], res["seat_bus"])
         active &= ~holds
         opn = active & (fl.end == OPEN)
         y[2] = np.where(opn, 0.0, y[2])
@@ -200,7 +310,8 @@ def _alone(pj: ArmatureParams, t0: float, y0, duty: float, period: float, bound:
 
     opened = y0[1] >= pj.stroke[0] and y0[2] == 0.0
     tr = simulate(pj, hold_schedule(t0, bound, duty, period), state="open" if opened else "free",
-                  start=y0, live=True, t0=t0, stop=lambda r: r.state == "seated", rtol=rtol, points=2)
+                  start=y0, live=True, t0=t0, stop=lambda r: r.state == "seated", rtol=rtol,
+                  points=BUS_SAMPLES if pj.droops else 2)
     seated = tr.state == "seated"
     ev = tr.events
     res["status"][j] = SEATED if seated else STALLED
@@ -210,12 +321,63 @@ def _alone(pj: ArmatureParams, t0: float, y0, duty: float, period: float, bound:
     res["dip_time"][j] = ev.get("impact", math.nan) if seated else math.nan
     res["dip_current"][j] = ev.get("dip_current", math.nan) if seated else math.nan
     res["stall_gap"][j] = math.nan if seated else float(tr.position[-1])
+    res["seat_charge"][j] = float(tr.charge[-1]) if seated else math.nan
+    res["seat_square"][j] = float(tr.square[-1]) if seated else math.nan
+    if pj.droops:   # (its lowest bus at the samples: BUS_SAMPLES a segment)
+        m = int(np.argmin(tr.bus))
+        if tr.bus[m] < res["low"][0, j]:
+            res["low"][:, j] = tr.bus[m], tr.time[m]
+        res["seat_bus"][j] = float(tr.bus[-1]) if seated else math.nan
+
+
+def window_flight(p: ArmatureParams, pin: PullInBatch, dt: float, rtol: float = 1e-7):
+    """The ``dt`` s after a :func:`~coildrive.model.armature_runs.pull_in` run's trip (the
+    boost still on: the conversion in which the firmware may see the threshold), flown
+    where the armature is in flight at the trip (status TRIPPED, speed not 0) -- its
+    bounces on the seat followed as in the pull-in -- until it comes to rest at a stop or
+    the window ends. With a bouncing seat (``restitution``) the rebound's motional term
+    drives the current up, so no closed-form bound holds over the window while the armature
+    may move away from the seat; at rest, or closing, the open coil's rise bounds the rest.
+
+    Returns ``(flown, highest A, t s, y)`` per point: where flown, the highest coil current
+    over the flight (at its accepted steps and its end) and the time and state (rows of the
+    run) where it stopped (the window's end, or a rest); elsewhere the trip's."""
+    n = len(p)
+    hit = np.isfinite(pin.trip_time)
+    t = np.where(hit, pin.trip_time, 0.0)
+    y = np.where(hit, pin.trip_state, 0.0)
+    flown = hit & (pin.status == TRIPPED) & (y[2] != 0.0)
+    i_now = p.current(y[0], y[1])
+    peak = np.stack([i_now, t])
+    t_end = t + dt
+    active = flown.copy()
+    on = np.ones(n, bool)
+    stiff = is_stiff(p, p.opening_force(p.stroke))
+    lam_stay = p.flux_closed(p.stay_current)
+    impact = np.array(pin.impact_speed, float)       # (the run's first impact, as the pull-in's)
+    bounces = np.array(pin.bounces, int)
+    for _ in range(4 * MAX_BOUNCES):
+        if not active.any():
+            break
+        fl = fly_mixed(p, t, y, t_end, active, on, on, stiff, rtol, track=active.copy(), peak=peak)
+        t = np.where(active, fl.t, t)
+        y = np.where(active, fl.y, y)
+        seat = active & (fl.end == SEAT)
+        impact = np.where(seat & np.isnan(impact), -y[2], impact)
+        rebound = p.restitution * np.abs(y[2])
+        bounce = seat & (rebound >= REST_FRACTION * impact) & (bounces < MAX_BOUNCES) & (rebound > 0)
+        bounces += bounce
+        opn = active & (fl.end == OPEN)
+        y[2] = np.where(bounce, rebound, np.where(seat | opn, 0.0, y[2]))
+        lifts = seat & ~bounce & (y[0] < lam_stay)   # (too little flux to stay: flies on)
+        active &= bounce | lifts
+    return flown, np.maximum(peak[0], p.current(y[0], y[1])), t, y
 
 
 def seated_in_peak(pin: PullInBatch) -> np.ndarray:
     """Where the armature of a :func:`boosted_pull_in` rests on the seat by the end of the
     peak (the threshold), as opposed to in the hold."""
-    return (pin.status == SEATED) & (pin.seat_time <= pin.trip_time)
+    return seated_in_peak_of(pin.status, pin.seat_time, pin.trip_time)
 
 
 def boost_energy(p_boost: ArmatureParams, state) -> np.ndarray:

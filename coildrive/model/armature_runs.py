@@ -79,6 +79,10 @@ class PullInBatch:
     #: seated coil's closed-form rise from the seat).
     trip_time: np.ndarray | None = None
     trip_state: np.ndarray | None = None
+    #: A boosted pull-in's hold on a drooping main bus
+    #: (:func:`coildrive.model.armature_boost.boosted_pull_in`): False where the seated
+    #: coil's PWM orbit had not repeated within its run (its ``lowest_bus`` the lowest so far).
+    bus_settled: np.ndarray | None = None
 
     @property
     def dip_depth(self) -> np.ndarray:

@@ -242,6 +242,21 @@ def pulse_floor(v_s, r_s, c, i_top, duty, period) -> np.ndarray:
     return np.asarray(v_s, float) - r_s * np.asarray(i_top, float) * np.where(d > 0, share, 0.0)
 
 
+def converter_current(v_s, r_s, p, i_top) -> np.ndarray:
+    """The most current (A) a converter drawing the constant power ``p`` W takes from the bus
+    behind ``r_s`` ohm from the source ``v_s`` V while the coil draws at most ``i_top`` A:
+    at the bus's floor ``v_f``, the larger root of ``v_f^2 - (V_s - R_s i_top) v_f + R_s P =
+    0`` (below it the source behind ``R_s`` gives more than the coil and the converter
+    take, so the bus never gets there: ``P / v`` <= ``P / v_f``). A source that cannot
+    carry it (no real root) has the bus at the root's double point, half of ``V_s - R_s
+    i_top``. (A boost converter fed from the main bus, recharging its capacitor after a
+    boosted peak.)"""
+    head = np.asarray(v_s, float) - r_s * np.asarray(i_top, float)
+    disc = np.maximum(head**2 - 4.0 * r_s * p, 0.0)
+    v_f = 0.5 * (head + np.sqrt(disc))
+    return p / np.maximum(v_f, 1e-9)
+
+
 def state_from(t, b: Bus, i0, v0) -> tuple[np.ndarray, np.ndarray]:
     """``(i A, v V)`` at ``t`` s after a moment at which the coil carries ``i0`` A and the
     bus is at ``v0`` V, the switch on throughout (the same circuit from any start:

@@ -566,7 +566,13 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     capacitor a state of the run (``bus_voltage``); the hold and the release on the stiff
     bus, as the design takes them -- but a full bridge's release, which returns the current
     into the bus, runs on it from the final turn-off (:func:`_bus_release`: the bus at the
-    supply's voltage there, the switches seeing ``V_bus + V_d``).
+    supply's voltage there, the switches seeing ``V_bus + V_d``). After a boosted peak (the
+    main bus at the source's voltage, nothing drew from it) the hold and the release run on
+    the drooping main bus instead, its capacitor a state from the hand-over on, the boost
+    converter drawing its constant current from then
+    (:func:`coildrive.model.supply.converter_current` with the coil at most the larger of
+    the hand-over current and the hold's steady top), as the design takes them
+    (``bus_voltage``: the main bus, the source's voltage in the peak; a PWM hold only).
 
     ``hold``: a hold that regulates by thresholds in place of the PWM (``duty`` and
     ``frequency`` then unused), ``hold(t_start, i0, v_on, r_on, r_off, v_off, inductance)
@@ -588,6 +594,10 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     if s.boosted:   # the peak from the boost (its capacitor a state with no source behind it)
         from .armature_boost import boost_params
         p_peak = boost_params(p, s.boost, s.boost_capacitance, s.boost_resistance)
+    #: a boosted peak on a drooping main supply: the hold and the release on the main bus
+    main = (params_from_loop(drive.armature, lp, l_factor, bus=(s.source_resistance, s.capacitance))
+            if s.boosted and s.droops and hold is None else None)
+    main_bus = None
     split = split_decay(drive)
     bridge = full_bridge(drive)   # the hold decays slowly, the release fast into the bus
     fast = p_rel = None
@@ -651,7 +661,7 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
         # the coil's two curves, the seated curve's tabulated exact segments).
         head = simulate(p_peak, schedule[:1], method=method, points=points)
         i0 = float(head.current[-1])
-        if head.state == "seated":
+        if head.state == "seated" and main is None:
             v, r_on, r_off, v_off = (float(a[0]) for a in (p.v_on, p.r_on, p.r_off, p.v_off))
             seated = float(p.l_closed[0]) if p.curves is None else p.coil_closed[0]
             if hold is not None:   # thresholds: the final turn-off and the bypass follow them
@@ -700,12 +710,19 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
                 if head.bus is not None:
                     tr.bus = np.concatenate([head.bus, np.full(th.size + tail.time.size - 1, float(p.v_on[0]))])
         if tr is None and p_peak is not p:
-            # the peak on the drooping bus, then on from its end state on the stiff bus
-            rest = simulate(p, schedule[1:], state=head.state, start=np.array(
-                [head.flux[-1], head.position[-1], head.velocity[-1], head.charge[-1], head.square[-1]]),
-                live=bool(head.current[-1] > 0), method=method, points=points, stop=released,
-                release_params=p_rel, t0=peak_time)
+            # the peak on the drooping bus, then on from its end state on the stiff bus (after
+            # a boost on a drooping main supply: on the main bus, from the source's voltage)
+            start = [head.flux[-1], head.position[-1], head.velocity[-1], head.charge[-1], head.square[-1]]
+            on_bus = p
+            if main is not None:
+                on_bus = _converter_fed(drive, main, float(head.current[-1]), duty, frequency)
+                start.append(supply)
+            rest = simulate(on_bus, schedule[1:], state=head.state, start=np.array(start),
+                            live=bool(head.current[-1] > 0), method=method, points=points, stop=released,
+                            release_params=p_rel, t0=peak_time)
             tr = _joined(head, rest, float(p.v_on[0]))
+            if main is not None:
+                main_bus = np.concatenate([np.full(head.time.size, float(supply)), rest.bus[1:]])
     if tr is None and hold is not None:
         raise ValueError("the armature is not seated at the end of the peak, or the hold's "
                          "current falls below the stay current: a hold switched by thresholds "
@@ -780,13 +797,29 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     trace = None
     if s.boosted:   # the run's capacitor in the peak, then its recharge: a boost_v column
         trace = _boost_trace(drive, tr, peak_time)
-        tr.bus = None
+        tr.bus = main_bus
     rail = supply if tr.bus is None else tr.bus   # a high-side switch's node: from the bus
     w = Waveform(tr.time, current, on, v_sw, sense, events, label, position=tr.position,
                  velocity=tr.velocity, bypass_on=bypass, magnetising_current=tr.magnetising_current,
                  bus_voltage=tr.bus,
                  **(extra if bridge else node_columns(drive, rail, current, on, v_sw)))
-    return boost_columns(drive, w, supply, peak_time, 0.0, 0.0, trace) if s.boosted else w
+    return boost_columns(drive, w, supply if main_bus is None else main_bus, peak_time, 0.0, 0.0,
+                         trace) if s.boosted else w
+
+
+def _converter_fed(drive: Drive, main, i_hand: float, duty: float, frequency: float):
+    """The main bus's points ``main`` (one point) with the boost converter's draw from the
+    hand-over on taken out of the source: ``V_s - R_s I_conv``
+    (:func:`coildrive.model.supply.converter_current`, the coil at most the larger of the
+    hand-over current ``i_hand`` A and the seated coil's steady PWM top at ``duty`` and
+    ``frequency`` Hz)."""
+    from .pwm import pwm_steady_state
+
+    top = pwm_steady_state(duty, frequency, main.v_on, main.r_on, main.r_off, main.v_off, main.l_closed).i_max
+    s = drive.supply
+    i_conv = bus_model.converter_current(main.v_on, s.source_resistance, s.converter_draw,
+                                         np.maximum(i_hand, top))
+    return dataclasses.replace(main, v_on=main.v_on - s.source_resistance * i_conv)
 
 
 def _bus_release(tr, p_bus, t_off: float, v_d2: float, sink: bool, points: int):

@@ -1,0 +1,194 @@
+"""A moving armature's boosted peak with a bouncing seat (``[supply] boost``, ``[armature]``
+with ``restitution``): the bounces in the peak and in the hold, and the conversion after
+the threshold flown where the armature is in flight (a rebound's motional term drives the
+current up, past the open coil's rise: coildrive/model/armature_boost.py
+``window_flight``, coildrive/design/boost_armature.py ``_end``).
+
+Outside reference: scipy's ``solve_ivp`` (DOP853, rtol 1e-11) of the circuit and armature
+written afresh in the *current* (``L(x) = L_c / (1 + beta x)``, ``L' = dL/dx``)::
+
+    boost:     L(x) di/dt = u - (R + R_b) i - i L'(x) v      C_b du/dt = -i
+    hold on:   L(x) di/dt = V - R i - i L'(x) v
+    hold off:  L(x) di/dt = -(R_off i + V_off) - i L'(x) v   (while i > 0)
+    m dv/dt = preload + rate (stroke - x) + load + i^2 L'(x) / 2 - c v
+
+resting on the open stop until the force beats spring + load; at the seat the speed turns
+into ``-e v`` (``e`` the restitution) until a rebound is slower than 1e-3 of the first
+impact speed (the model's rule, ``coildrive.model.armature.REST_FRACTION``), then at rest
+there. Checked: the threshold's moment and the last seat (the hold carrying the bounces
+on), and the most current over the conversion after a threshold that comes between two
+bounces, within 1e-6.
+
+The scenario (the fast valve of examples/fast-valve-boost-armature-12v.toml with a
+restitution of 0.4) is invented.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pytest
+
+from armature_equations import boosted_events, boosted_rhs
+from conftest import EXAMPLES, run_cli
+from test_boost_armature import BOOST, DUTY, EXAMPLE, PERIOD, POINT
+
+from coildrive.model.armature import SEATED, TRIPPED, ArmatureParams
+from coildrive.model.armature_boost import boost_params, boosted_pull_in, window_flight
+from coildrive.model.armature_runs import pull_in
+
+E = 0.4                  # the seat's restitution
+REST = 1e-3              # a rebound below this fraction of the first impact speed rests
+
+
+def reference(g: dict, boost: tuple, trip: float, duty: float, period: float, t_end: float,
+              window: float = 0.0) -> dict:
+    """solve_ivp (DOP853) of the module docstring's equations: ``trip`` (s), the last
+    ``seat`` (s, at rest), ``bounces``, ``impacts`` ((s, m/s) each), and over ``window`` s
+    after the trip with the boost still on the most current while the armature flies
+    (``top``, A) and over the whole window (``top_all``) -- the pieces' dense output, 4000
+    points each, and their ends -- and the moment it came to rest in it (``rest``, s)."""
+    from scipy.integrate import solve_ivp
+
+    v_b = boost[0]
+    s = g["stroke"]
+    rhs = boosted_rhs(g, boost)
+
+    opts = dict(method="DOP853", rtol=1e-11, atol=1e-14)
+
+    start, at_trip = boosted_events(g, trip)
+
+    st = {"state": "open", "impact": None, "bounces": 0, "top": 0.0, "top_all": 0.0, "left": -1.0}
+
+    def seat(t, y):   # (at the moment of a rebound the speed: not a root there)
+        return y[1] if t > st["left"] else y[2]
+    seat.terminal, seat.direction = True, -1
+
+    def run(mode, t, y, stop, tripping=False, watch=False):
+        """On in ``mode`` from ``t`` to ``stop`` (or the threshold), bounces and all."""
+        while t < stop:
+            free = st["state"] == "free"
+            events = [seat] if free else ([start] if st["state"] == "open" else [])
+            if tripping:
+                events = events + [at_trip]
+            sol = solve_ivp(rhs(mode, free), (t, stop), y, events=events, dense_output=watch, **opts)
+            if watch:
+                tt = np.linspace(t, float(sol.t[-1]), 4000)
+                top = max(float(np.max(sol.sol(tt)[0])), float(sol.y[0, -1]))
+                st["top_all"] = max(st["top_all"], top)
+                if free:
+                    st["top"] = max(st["top"], top)
+            t, y = float(sol.t[-1]), list(sol.y[:, -1])
+            y[0] = max(y[0], 0.0)
+            if tripping and sol.t_events[-1].size:
+                return t, y, True
+            if sol.status == 1 and st["state"] == "open":
+                st["state"] = "free"
+            elif sol.status == 1 and free:   # the seat: a bounce or at rest
+                speed = -y[2]
+                st["impact"] = st["impact"] or speed
+                st.setdefault("impacts", []).append((t, speed))
+                y[1] = 0.0
+                if E * speed >= REST * st["impact"]:
+                    y[2] = E * speed
+                    st["left"] = t
+                    st["bounces"] += 1
+                else:
+                    y[2] = 0.0
+                    st["state"] = "seated"
+                    st["seat"] = t
+        return t, y, False
+
+    t, y, _ = run("boost", 0.0, [0.0, s, 0.0, v_b], t_end, tripping=True)
+    out = {"trip": t}
+    if window > 0:
+        saved = {k: (list(v) if isinstance(v, list) else v) for k, v in st.items()}
+        run("boost", t, list(y), t + window, watch=True)
+        out.update(top=st["top"], top_all=st["top_all"], rest=st.get("seat", math.inf))
+        st.clear()
+        st.update(saved)
+    k = 0
+    while st["state"] != "seated" and t < t_end:
+        for mode, stop in (("on", out["trip"] + (k + duty) * period), ("off", out["trip"] + (k + 1) * period)):
+            t, y, _ = run(mode, t, y, stop)
+        k += 1
+    out.update(seat=st.get("seat", math.inf), bounces=st["bounces"], impacts=st.get("impacts", []))
+    return out
+
+
+def _params(**change) -> ArmatureParams:
+    return ArmatureParams.make(**{**POINT, "restitution": E, **change})
+
+
+def test_bounces_into_the_hold_match_scipy_on_the_equations_written_afresh():
+    """A threshold in flight: the hold carries the armature onto the seat, bouncing; the
+    threshold's moment and the last seat (at rest) against solve_ivp (DOP853)."""
+    p = _params()
+    pin = boosted_pull_in(boost_params(p, *BOOST), p, 1.0, DUTY, PERIOD, 0.02, rtol=1e-9)
+    ref = reference(POINT, BOOST, 1.0, DUTY, PERIOD, 0.02)
+    assert pin.status[0] == SEATED and ref["bounces"] > 2
+    assert pin.bounces[0] == ref["bounces"]
+    assert pin.trip_time[0] == pytest.approx(ref["trip"], rel=1e-6)           # scipy solve_ivp
+    assert pin.seat_time[0] == pytest.approx(ref["seat"], rel=1e-6)           # scipy solve_ivp
+
+
+def test_the_conversion_after_a_threshold_between_bounces_against_scipy():
+    """A threshold at the current's hump before the first impact comes between two later
+    bounces: the conversion after it (one 20 kHz period) is flown, bounces and all, until the
+    armature rests on the seat -- the moment and the most current over the flight within
+    1e-6 of solve_ivp's -- and from the rest on the open coil's rise bounds the current: the
+    two together at or above solve_ivp's most current over the whole conversion."""
+    from coildrive.model.rl import rise_current
+
+    p = _params()
+    pb = boost_params(p, *BOOST)
+    trip = float(pull_in(pb).hump_current[0])
+    pin = pull_in(pb, trip=trip, rtol=1e-10)
+    assert pin.status[0] == TRIPPED and pin.trip_state[1, 0] < 0.02 * POINT["stroke"]   # among the bounces
+    flown, top, t_rest, y = window_flight(pb, pin, PERIOD, rtol=1e-10)
+    ref = reference(POINT, BOOST, trip, DUTY, PERIOD, 0.02, window=PERIOD)
+    assert flown[0] and ref["trip"] < ref["rest"] < ref["trip"] + PERIOD
+    assert pin.trip_time[0] == pytest.approx(ref["trip"], rel=1e-6)           # scipy solve_ivp
+    assert t_rest[0] == pytest.approx(ref["rest"], rel=1e-6)                  # scipy solve_ivp
+    assert top[0] == pytest.approx(ref["top"], rel=1e-6)                      # scipy solve_ivp
+    i_rest = pb.current(y[0], y[1])
+    bound = rise_current(ref["trip"] + PERIOD - t_rest, i_rest, pb.v_on, pb.r_on, pb.l_open)
+    assert max(float(top[0]), float(bound[0])) >= ref["top_all"] * (1 - 1e-9)
+
+
+def test_design_of_a_bouncing_armature(tmp_path):
+    """``coildrive design --json`` of the example with a bouncing seat (a real subprocess):
+    seated at every corner (in the hold: the bounces outlast the peak), later than the
+    inelastic seat; an eddy term with it, and such a channel in a system file, stay refused
+    in one line."""
+    board = EXAMPLES.parent / "boards" / "lab-m32-zener.toml"
+    text = EXAMPLE.read_text().replace('board = "lab-m32-zener"', f'board = "{board}"').replace(
+        'damping = "1 N*s/m"', f'damping = "1 N*s/m"\nrestitution = {E}')
+    path = tmp_path / "bounce.toml"
+    path.write_text(text)
+    r = run_cli("design", str(path), "--json")
+    assert r.returncode == 0, r.stderr
+    d = json.loads(r.stdout)
+    a = d["armature"]
+    assert a["seated_corners"] == a["corners"] and a["seated_in_peak_corners"] < a["corners"]
+    assert d["pull_in"]["time_s"] == a["seat_time_s"] <= a["seat_window_s"]
+    seats = next(c for c in d["checks"] if c["name"] == "armature_seats")
+    assert seats["ok"] and "in the hold after the threshold" in seats["detail"]
+    plain = json.loads(run_cli("design", str(EXAMPLE), "--json", cwd=EXAMPLES).stdout)
+    assert a["seat_time_s"] > plain["armature"]["seat_time_s"]        # the bounces take time
+    from types import SimpleNamespace
+
+    from coildrive.config import load_drive
+    from coildrive.design.system import _refuse
+    from coildrive.errors import InputError
+
+    with pytest.raises(InputError) as err:   # a system's channel: the rail's bound takes the boost's rise
+        _refuse(SimpleNamespace(source="board.toml"), SimpleNamespace(name="a", drive=load_drive(path)))
+    assert err.value.key == "armature.restitution" and "\n" not in str(err.value)
+    eddy = tmp_path / "eddy.toml"
+    eddy.write_text(text.replace("inductance_tolerance = 0.10", 'inductance_tolerance = 0.10\neddy_resistance = "200 ohm"'))
+    r = run_cli("design", str(eddy))
+    assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1
+    assert "armature.restitution" in r.stderr and "eddy-current term" in r.stderr
