@@ -544,3 +544,36 @@ def test_a_regulated_hold_where_the_armature_seats_within_the_peak(tmp_path, key
                 "--csv", str(csv), cwd=EXAMPLES)
     assert r.returncode == 0, r.stderr
     assert line.split('"')[1] in r.stderr and "seated at" in r.stderr
+
+
+def test_a_high_threshold_s_short_hold_passes_check_where_it_has_not_settled(tmp_path):
+    """The example with a 1.8 x threshold on relay-12bit-resistor (the drive's own diode
+    path): the peak ends at 1.35 A, and 4 ms of hold is too short for the seated coil
+    (L/R ~ 1.4 ms) to settle to its 0.53 A hold. The emulated capture's hold mean over
+    the last half of the hold is ~0.65 A; check predicts the model's mean over that same
+    stretch (not the steady state, which failed it by 21 %) and passes. Plumbing (the
+    device shares the model); the window's arithmetic is checked against the averaged
+    PWM model in tests/test_check_fit.py."""
+    import sys
+
+    sys.path.insert(0, str(Path(__file__).parent))
+    from test_emulator_device import capture_of, run as run_device
+
+    from coildrive.bench.check import check_capture
+    from coildrive.bench.device import DeviceOptions, VirtualDevice
+    from coildrive.config import load_drive
+    from coildrive.design import design
+
+    board = EXAMPLES.parent / "boards" / "relay-12bit-resistor.toml"
+    path = tmp_path / "v.toml"
+    path.write_text(EXAMPLE.read_text().replace('board = "lab-m32-zener"', f'board = "{board}"')
+                    .replace("current_margin = 1.5 ", "current_margin = 1.8 "))
+    d = design(load_drive(path))
+    assert d.boost.threshold_a == pytest.approx(1.35)
+    dev = VirtualDevice(d.drive, DeviceOptions(noise_codes=1.0, seed=3, hold_time=0.004), design=d)
+    msgs, _ = run_device(dev, 0.05 + 2 * dev.period, step=0.05)
+    report = check_capture(capture_of(msgs, tmp_path / "c.cdcap"), d)
+    row = next(i for i in report.items if i.name == "hold_mean")
+    assert report.ok, [(i.name, i.status, i.detail) for i in report.items if i.status == "FAIL"]
+    # (measured 0.6454 A, predicted 0.6462 A; the steady state there is 0.533 A)
+    assert row.measured == pytest.approx(row.predicted, rel=0.02) and row.predicted > 1.15 * 0.533
