@@ -118,7 +118,7 @@ def runs(drive: Drive, p: ArmatureParams, duty, period, i_top, thresholds: tuple
 
 
 def peak_heat(drive: Drive, lp, peak_time) -> np.ndarray:
-    """J the coil's copper takes in one boosted peak with the moving armature at the points
+    """J that heats the coil in one boosted peak with the moving armature at the points
     of ``lp`` (an on/off cycle's peak, :func:`coildrive.design.thermal_cycle.peak_heat`):
     ``R_coil int i^2 dt`` of the armature's run from the boost (the run's own ``sq``,
     :func:`~coildrive.model.armature_runs.pull_in` with the highest trip current) to the
@@ -126,14 +126,33 @@ def peak_heat(drive: Drive, lp, peak_time) -> np.ndarray:
     (:func:`_end`'s stiff open-coil bound), from the boost at its lowest (the longest peak)
     and at its highest (the most current), the larger. Where the run never reaches the
     highest trip current the current stays below it for the whole time-out ``peak_time``
-    s: ``R_coil i_trip^2 peak_time`` bounds it. A linear coil without an eddy term."""
+    s: ``R_coil i_trip^2 peak_time`` bounds it.
+
+    With an eddy term (``i`` the terminal current the winding carries) the core's loss
+    ``int v_m^2 / R_e dt`` is added, bounded from above by the first law at the trip: what
+    the boost gave (``1/2 C_b (V_b^2 - u^2)``, an ideal boost ``V_b int i dt``) less the
+    loop's copper ``(R_on + R_b) int i^2 dt``, the field's ``lambda i_m / 2`` (linear
+    ``L(x)``), the armature's kinetic energy and the spring's and load's work -- the
+    damping's heat, not known without integrating it, is left in, so the bound is exact
+    with no damping and above the loss by that heat otherwise. Over the conversion after
+    the trip (and over the time-out where the trip never comes) the branch's voltage
+    ``v_m = R_e (u - R i_m) / (R + R_e)`` is at most ``R_e max(V_b, R i_m) / (R + R_e)`` in
+    size, ``i_m`` at most the open branch's stiff rise from the trip (where never, at most
+    ``(R + R_e) i_trip / R_e``, the terminal current being below ``i_trip``)."""
+    from ..model.eddy import EddyCoil
     from .boost import threshold
 
-    fields = ("v_on", "r_on", "r_off", "v_off", "inductance", "r_coil", "supply")
-    shape = np.broadcast_shapes(*(np.shape(getattr(lp, f)) for f in fields))
-    flat = Loop(*(np.ravel(np.broadcast_to(getattr(lp, f), shape)).astype(float) for f in fields))
-    # (the loop's inductance is the seated one x the tolerance factor: circuit.loop)
-    p = params_from_loop(drive.armature, flat, flat.inductance / drive.armature.inductance_closed)
+    eddy = isinstance(lp.inductance, EddyCoil)
+    fields = ("v_on", "r_on", "r_off", "v_off", "r_coil", "supply")
+    ind = lp.inductance.magnetising if eddy else lp.inductance
+    shape = np.broadcast_shapes(*(np.shape(getattr(lp, f)) for f in fields), np.shape(ind))
+    flat = {f: np.ravel(np.broadcast_to(getattr(lp, f), shape)).astype(float) for f in fields}
+    ind = np.ravel(np.broadcast_to(np.asarray(ind, float), shape))
+    r_e = float(drive.coil.eddy_resistance) if eddy else 0.0
+    # (the loop's inductance, the magnetising branch's with an eddy term, is the seated one
+    # x the tolerance factor: circuit.loop)
+    flat = Loop(flat["v_on"], flat["r_on"], flat["r_off"], flat["v_off"], ind, flat["r_coil"], flat["supply"])
+    p = params_from_loop(drive.armature, flat, ind / drive.armature.inductance_closed, r_e)
     i_trip = threshold(drive)[2]
     dt = conversion_period(drive)
     t_out = np.ravel(np.broadcast_to(np.asarray(peak_time, float), shape))
@@ -143,9 +162,32 @@ def peak_heat(drive: Drive, lp, peak_time) -> np.ndarray:
         pin = pull_in(pb, trip=i_trip)
         _, i_end, _, _ = _end(drive, pb, pin, i_trip)
         hit = np.isfinite(pin.trip_time)
-        sq = np.where(hit, np.where(hit, pin.trip_state[4], 0.0) + i_end**2 * dt, i_trip**2 * t_out)
-        heat = np.maximum(heat, sq)
-    return (flat.r_coil * heat).reshape(shape)
+        y = np.where(hit, pin.trip_state, 0.0)
+        sq = np.where(hit, y[4] + i_end**2 * dt, i_trip**2 * t_out)
+        total = flat.r_coil * sq
+        if eddy:
+            total = total + np.where(hit, _core_loss(pb, y) + _branch_bound(pb, r_e, rise_current(
+                dt, pb.current(y[0], y[1]), pb.v_on, pb.r_on, pb.coil_open)) ** 2 * dt / r_e,
+                _branch_bound(pb, r_e, (pb.r_on + r_e) * i_trip / r_e) ** 2 * t_out / r_e)
+        heat = np.maximum(heat, total)
+    return heat.reshape(shape)
+
+
+def _core_loss(pb: ArmatureParams, y) -> np.ndarray:
+    """J: the eddy resistance's heat in the run to the state ``y`` (rows of the run),
+    bounded from above by the first law (:func:`peak_heat`): the boost's energy less the
+    loop's copper, the field's, the kinetic energy and the spring's and load's work."""
+    lam, x, v, _, sq = y[:5]
+    travel = pb.stroke - x
+    work = (pb.preload + pb.load) * travel + 0.5 * pb.rate * travel**2
+    field = 0.5 * lam * pb.current(lam, x)
+    return np.maximum(boost_energy(pb, y) - pb.r_on * sq - field - 0.5 * pb.mass * v**2 - work, 0.0)
+
+
+def _branch_bound(pb: ArmatureParams, r_e: float, i_m) -> np.ndarray:
+    """V: the largest size of the magnetising branch's voltage ``R_e (u - R i_m)/(R + R_e)``
+    with the boost at most at its full ``V_b`` and the branch's current at most ``i_m`` A."""
+    return r_e * np.maximum(pb.v_on, pb.r_on * np.asarray(i_m, float)) / (pb.r_on + r_e)
 
 
 def sampled_pull_in(drive: Drive, res, v_factor, c_factor, duty, timeout):
