@@ -666,3 +666,36 @@ def test_an_on_off_cycle_with_an_eddy_term_bounds_the_peak_s_core_loss_by_the_fi
     assert r.returncode in (0, 1), r.stderr
     cyc = json.loads(r.stdout)["thermal_cycle"]["cycle"]
     assert 0 < cyc["peak_energy_j"] < cyc["hold_energy_j"]
+
+
+@pytest.mark.compiler
+@pytest.mark.parametrize("line, hot", [('mode = "current"', True), ('regulation = "closed_loop"', False)],
+                         ids=["current", "closed_loop"])
+def test_regulated_holds_in_the_loop_where_the_armature_seats_in_the_peak(tmp_path, line, hot):
+    """A 1.8 x threshold on relay-12bit-resistor (the drive's own diode path) seats the
+    armature within the peak at every corner, so the current-mode hold and the closed loop
+    design; the compiled driver in the loop (the flight handed to the seated coil's closed
+    form before the regulation takes over) passes ``check`` with the seat's dip timed, at one
+    worst corner each (lean): the hottest coil at 9 V for the current-mode hold, the coldest
+    at 16 V for the closed loop."""
+    from driver_harness import checked_rows, loop_captures
+
+    from coildrive.bench.messages import EventKind
+    from coildrive.config import load_drive
+    from coildrive.design import design
+
+    board = EXAMPLES.parent / "boards" / "relay-12bit-resistor.toml"
+    drive = tmp_path / "drive.toml"
+    drive.write_text(EXAMPLE.read_text().replace('board = "lab-m32-zener"', f'board = "{board}"')
+                     .replace("current_margin = 1.5 ", "current_margin = 1.8 ")
+                     .replace('frequency = "60 kHz"', f'frequency = "60 kHz"\n{line}'))
+    d = design(load_drive(drive))
+    assert d.armature is not None and d.hold.regulation in ("current", "closed_loop")
+    temps = [c.coil_temp_c for c in d.corners]
+    runs = [(d.drive.supply.min, max(temps), None) if hot else (d.drive.supply.max, min(temps), None)]
+    (path, cap), = loop_captures(tmp_path, d, runs, hold_time=0.01)
+    kinds = [int(e.kind) for e in cap.events]
+    assert int(EventKind.FAULT) not in kinds and int(EventKind.PEAK_END) in kinds, kinds
+    rows = checked_rows(path, drive, runs[0][1])
+    assert {n for n, i in rows.items() if i["status"] == "pass"} >= {
+        "pull_in_time", "seated_time", "peak_duration", "hold_mean", "release_time"}
