@@ -1494,8 +1494,10 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     mode), a peak that ends at its threshold. A moving armature
     (:mod:`coildrive.model.armature_boost`): a linear coil (an eddy term too), a
     voltage-mode hold (fixed or supply table; on a full bridge slow decay, no mixed decay;
-    or the closed loop) or a current-mode hold -- the two regulated ones where the design
-    finds the armature seated within the peak at every corner
+    or the closed loop, which carries an armature in flight with its own PI:
+    :func:`coildrive.design.boost_armature.loop_pull_in`) or a current-mode hold -- that one
+    (and the closed loop with an eddy term) where the design finds the armature seated
+    within the peak at every corner
     (:func:`coildrive.design.boost_armature.require_seated_in_peak`), an inelastic seat (no restitution), an on/off cycle
     (the peak's heat is the run's copper integral, with an eddy term plus its core loss
     bounded by the first law: :func:`coildrive.design.boost_armature.peak_heat`).

@@ -20,6 +20,11 @@ with an eddy term the terminal current, what the sense sees):
   stiff boost at full charge (while the armature stands or closes its motional term only
   holds the current back, and ``L(x) >= L_open``), so that bounds the end current and, with
   the capacitor's state at the trip, the energy drawn.
+
+Under a closed-loop hold the pull-in run is redone where the armature is still in flight
+when the peak ends, each hold period's duty the driver's integer PI on the period's
+conversion (:class:`LoopControl`, :func:`loop_pull_in`); a current-mode hold needs it seated
+within the peak (:func:`require_seated_in_peak`).
 """
 
 from __future__ import annotations
@@ -222,3 +227,86 @@ def require_seated_in_peak(drive: Drive, label, pin: PullInBatch, key: str, hold
                          "armature only where it seats within the peak, and at "
                          f"{label(k)} it is not yet seated when the peak ends ({why}): expected a higher threshold "
                          "(pull_in.current_margin) or a voltage-mode hold")
+
+
+class LoopControl:
+    """The closed loop's duty after a boosted peak, period by period, as the reference
+    driver computes it (the header's integer PI, docs/firmware.md): a ``control`` of
+    :func:`~coildrive.model.armature_boost.boosted_pull_in`.
+
+    The conversion that reads the threshold preloads the integrator (``preload_compare``)
+    and runs the first PI step on the threshold's code (:meth:`first`); every period's
+    conversion -- the middle of the on-time with the sense under the switch, of the period
+    in the coil path -- gives the next period's compare. ``loop``: the design's
+    :class:`~coildrive.design.result.ClosedLoopResult`; ``counts``: the timer's period
+    (counts); ``codes_per_amp``: the reading's codes per true ampere at each point (the
+    chain reading high: the lowest current the loop settles at, the weakest push)."""
+
+    def __init__(self, loop, counts: int, codes_per_amp, switch_leg: bool, full: int):
+        self.loop, self.counts, self.switch_leg, self.full = loop, counts, switch_leg, full
+        self.cpa = np.asarray(codes_per_amp, float)
+        self.integ = np.full(self.cpa.shape, loop.preload_compare << loop.gain_shift, dtype=np.int64)
+
+    def sample(self, duty) -> np.ndarray:
+        """The conversion's moment, a fraction of the period, at each point's ``duty``."""
+        return 0.5 * np.asarray(duty, float) if self.switch_leg else np.full(np.shape(duty), 0.5)
+
+    def _pi(self, k, code) -> np.ndarray:
+        r = self.loop
+        lo, hi = r.integrator_min, r.integrator_max
+        e = r.setpoint_code - np.asarray(code, np.int64)
+        integ = self.integ[k]
+        p = r.kp_q * e
+        s = p + integ
+        wound = ((s >= hi) & (e > 0)) | ((s <= lo) & (e < 0))
+        integ = np.where(wound, integ, np.clip(integ + r.ki_q * e, lo, hi))
+        self.integ[k] = integ
+        s = np.clip(p + integ, lo, hi)
+        return (s >> r.gain_shift) / self.counts
+
+    def first(self, code: int) -> np.ndarray:
+        """The first hold period's duty at every point, from the threshold's ``code``."""
+        k = np.arange(self.cpa.size)
+        return self._pi(k, np.full(k.size, code))
+
+    def step(self, k, i) -> np.ndarray:
+        """The next period's duty at points ``k`` from the current ``i`` A converted."""
+        code = np.clip(np.floor(np.asarray(i, float) * self.cpa[k]), 0, self.full)
+        return self._pi(k, code)
+
+
+def loop_pull_in(drive: Drive, res, loop, counts: int, reading, switch_leg: bool):
+    """``res`` (evaluated points with their boosted runs, the closed loop's settled duty in
+    the hold) with the pull-in run redone under the loop's own duties where the armature is
+    not yet seated when the peak ends: from the threshold the integer PI of
+    :class:`LoopControl` (preloaded, cutting the duty while the reading is above the
+    set-point) carries it, period by period, as the firmware does (``reading``: the sense
+    chain's reading over the true current per point, its high end). The seat times, the
+    pull-in time and the runs' ``slow`` follow; points seated within the peak keep theirs."""
+    from .boost import threshold
+
+    arm = res.armature
+    runs_ = arm.boost
+    pin = runs_.slow
+    late = np.flatnonzero(~seated_in_peak(pin) & np.isfinite(pin.trip_time))
+    if late.size == 0:
+        return res
+    b = drive.board
+    cpa = b.sense.resistance * b.sense.gain / b.adc.reference * 2**b.adc.bits
+    p = arm.params.take(late)
+    control = LoopControl(loop, counts, cpa * np.ravel(np.broadcast_to(reading, (len(arm.params),)))[late],
+                          switch_leg, 2**b.adc.bits - 1)
+    i_th, code, _ = threshold(drive)
+    period = np.ravel(np.broadcast_to(np.asarray(res.hold.period, float), (len(arm.params),)))[late]
+    got = boosted_pull_in(_boost(drive, p, False), p, i_th, control.first(code), period, runs_.window,
+                          rtol=1e-7, control=control)
+    fields = ("status", "seat_time", "seat_current", "impact_time", "impact_speed", "dip_current",
+              "dip_time", "stall_gap", "bound", "bounces", "steps")
+    merged = {}
+    for name in fields:
+        value = np.array(getattr(pin, name), copy=True)
+        value[late] = getattr(got, name)
+        merged[name] = value
+    slow = replace(pin, **merged)
+    arm = replace(arm, boost=replace(runs_, slow=slow), pull_in=slow)
+    return replace(res, armature=arm, pull_in_time=slow.seat_time.reshape(np.shape(res.pull_in_time)))
