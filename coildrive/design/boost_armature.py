@@ -215,18 +215,20 @@ def sampled_pull_in(drive: Drive, res, v_factor, c_factor, duty, timeout):
     return replace(res, pull_in_time=pin.seat_time.reshape(np.shape(res.pull_in_time)))
 
 
-def require_seated_in_peak(drive: Drive, label, pin: PullInBatch, key: str, hold: str, why: str) -> None:
+def require_seated_in_peak(drive: Drive, label, pin: PullInBatch, key: str, hold: str, why: str,
+                           instead: str = "a voltage-mode hold") -> None:
     """Refuse in one line (``key``) a ``hold`` that is not modelled with the armature moving
     (``why``, in words), where the pull-in run ``pin`` (the envelope's: the boost at its
     lowest until the threshold itself, the shortest push any real peak gives) has the
-    armature not yet on the seat when the peak ends; ``label(k)`` names point ``k``."""
+    armature not yet on the seat when the peak ends; ``label(k)`` names point ``k``;
+    ``instead``: the holds that do carry it, in words."""
     late = np.flatnonzero(~seated_in_peak(pin))
     if late.size:
         k = int(late[np.argmax(pin.seat_time[late])])
         raise InputError(drive.source, key, f"{hold} after the boosted peak is modelled with a moving "
                          "armature only where it seats within the peak, and at "
                          f"{label(k)} it is not yet seated when the peak ends ({why}): expected a higher threshold "
-                         "(pull_in.current_margin) or a voltage-mode hold")
+                         f"(pull_in.current_margin) or {instead}")
 
 
 class LoopControl:

@@ -20,7 +20,9 @@ until it rests on the seat, falls back to the open stop where the hold's highest
 cannot start it again, or a window ends (the design's: ``pull_in.margin`` x the longest
 boosted peak over the envelope -- flying a weak hold's slow approach edge by edge for as long as
 the mechanics' own time bound would cost minutes over the envelope, and an armature that
-is not seated by then fails the design anyway).
+is not seated by then fails the design anyway). A hold whose duty the firmware sets period
+by period (a closed loop: ``control``) flies the same edges with each period's duty from the
+current at the period's conversion (the flight's state there).
 
 Energy: the boost gives ``1/2 C_b (V_b^2 - u^2)`` (an ideal boost ``V_b int i dt``),
 which is the field's energy plus the loop's ``R int i^2 dt`` plus the mechanical work
