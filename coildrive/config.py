@@ -1501,12 +1501,14 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     mode), a peak that ends at its threshold. A moving armature
     (:mod:`coildrive.model.armature_boost`): a linear coil (an eddy term too), a
     voltage-mode hold (fixed or supply table; on a full bridge slow decay, no mixed decay;
-    or the closed loop) or a current-mode hold -- the two regulated ones where the design
-    finds the armature seated within the peak at every corner
+    or the closed loop, which carries an armature in flight with its own PI:
+    :func:`coildrive.design.boost_armature.loop_pull_in`) or a current-mode hold -- that one
+    (and the closed loop with an eddy term) where the design finds the armature seated
+    within the peak at every corner
     (:func:`coildrive.design.boost_armature.require_seated_in_peak`), a bouncing seat (``restitution``) without an
     eddy term (the conversion after the threshold flown: :func:`coildrive.model.armature_boost.window_flight`),
-    an on/off cycle without an eddy term
-    (the peak's heat is the run's copper integral: :func:`coildrive.design.boost_armature.peak_heat`).
+    an on/off cycle (the peak's heat is the run's copper integral, with an eddy term plus its core loss
+    bounded by the first law: :func:`coildrive.design.boost_armature.peak_heat`).
     Anything else is refused in one line."""
     if not supply.boosted:
         return
@@ -1540,9 +1542,6 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                                             "only)")
     elif armature is not None and hold.fast_fraction > 0:
         key, why = "hold.fast_fraction", "a moving armature and a full bridge's mixed-decay hold together"
-    elif armature is not None and duty is not None and coil.eddy_resistance:
-        key, why = "duty", ("a moving armature, an eddy-current term and an on/off cycle ([duty]) "
-                            "together (the peak's core loss in the run is not bounded)")
     elif pull_in.compensate:
         key, why = "pull_in.compensate", ("a supply-compensated peak (the boosted peak runs from the boost, "
                                           "not the main supply, and ends at its threshold: nothing to compensate)")

@@ -54,12 +54,17 @@ def _params(**change) -> ArmatureParams:
 
 
 def reference(g: dict, v_b: float, c_b: float, r_b: float, trip: float, duty: float, period: float,
-              t_end: float, r_e: float | None = None) -> dict:
+              t_end: float, r_e: float | None = None, control=None) -> dict:
     """solve_ivp (DOP853) of the module docstring's equations, piece by piece. ``r_e``: an
     eddy resistance across the inductance -- ``i`` is then the inductance's current, the
     loop carries the terminal current ``(V + R_e i)/(R + R_e)`` (off: ``(R_e i - V_off)/(R_off
     + R_e)`` while positive, else 0), the inductance sees ``R_e`` times the difference, the
-    threshold is on the terminal current and the capacitor feeds it."""
+    threshold is on the terminal current and the capacitor feeds it. Carries ``int i^2 dt``
+    (the terminal current), the eddy resistance's heat ``int v_L^2 / R_e dt`` and the
+    damping's ``int c v^2 dt`` (out: ``sq``, ``core``, ``damp``). ``control``: ``(duty_of,
+    fraction)`` for a hold whose duty is set period by period (a closed loop): each period's
+    duty is ``duty_of(samples)`` from the currents converted so far, one a period at
+    ``fraction`` of it (``duty`` unused)."""
     from scipy.integrate import solve_ivp
 
     s = g["stroke"]
@@ -86,12 +91,13 @@ def reference(g: dict, v_b: float, c_b: float, r_b: float, trip: float, duty: fl
 
     def rhs(mode, free):
         def f(_t, y):
-            i, x, v, u, _ = y
+            i, x, v, u = y[:4]
             v_l, term = loop(mode, y)
             di = (v_l - i * slope(x) * v) / ind(x)
             acc = (opening(x) + 0.5 * i * i * slope(x) - g["damping"] * v) / g["mass"] if free else 0.0
             du = -term / c_b if mode == "boost" else 0.0
-            return [di, v if free else 0.0, acc, du, term * term]
+            core = 0.0 if r_e is None else v_l * v_l / r_e     # the eddy resistance's heat
+            return [di, v if free else 0.0, acc, du, term * term, core, g["damping"] * v * v if free else 0.0]
         return f
 
     opts = dict(method="DOP853", rtol=1e-11, atol=1e-14)
@@ -108,7 +114,7 @@ def reference(g: dict, v_b: float, c_b: float, r_b: float, trip: float, duty: fl
         return y[1]
     seat.terminal, seat.direction = True, -1
 
-    y = [0.0, s, 0.0, v_b, 0.0]
+    y = [0.0, s, 0.0, v_b, 0.0, 0.0, 0.0]
     sol = solve_ivp(rhs("boost", False), (0, t_end), y, events=[start, at_trip], **opts)
     t = float(sol.t[-1])
     y = list(sol.y[:, -1])
@@ -121,16 +127,26 @@ def reference(g: dict, v_b: float, c_b: float, r_b: float, trip: float, duty: fl
             y[1] = y[2] = 0.0
             sol = solve_ivp(rhs("boost", False), (t, t_end), y, events=[at_trip], **opts)
             t, y = float(sol.t[-1]), list(sol.y[:, -1])
-    out.update(trip=t, x=y[1], v=y[2], u=y[3], sq=y[4])
+    out.update(trip=t, i=y[0], x=y[1], v=y[2], u=y[3], sq=y[4], core=y[5], damp=y[6])
     k = 0
+    samples: list[float] = []
     while "seat" not in out and t < t_end:
-        for mode, stop in (("on", out["trip"] + (k + duty) * period), ("off", out["trip"] + (k + 1) * period)):
-            sol = solve_ivp(rhs(mode, True), (t, stop), y, events=[seat], **opts)
+        start = out["trip"] + k * period
+        d = duty if control is None else control[0](samples)
+        pieces = [("on", start + d * period), ("off", start + period)]
+        if control is not None:   # a stop at the conversion, inside the piece it falls in
+            at = start + control[1] * period
+            pieces = sorted(pieces + [("on" if at < start + d * period else "off", at, "sample")],
+                            key=lambda x: x[1])
+        for piece in pieces:
+            sol = solve_ivp(rhs(piece[0], True), (t, piece[1]), y, events=[seat], **opts)
             t, y = float(sol.t[-1]), list(sol.y[:, -1])
             y[0] = max(y[0], 0.0) if r_e is None else y[0]
             if sol.t_events[0].size:
                 out["seat"] = t
                 break
+            if len(piece) > 2:
+                samples.append(y[0])
         k += 1
     return out
 
@@ -268,19 +284,14 @@ def test_simulate_runs_the_peak_from_the_boost_and_the_armature_onto_the_seat(tm
 
 
 def test_what_stays_refused_is_refused_in_one_line(tmp_path):
-    """A bouncing armature with an eddy term, an on/off cycle with an eddy term and a full
-    bridge's mixed decay stay refused with a moving armature on the boosted peak: one line
-    naming the key (exit 2)."""
+    """A bouncing armature with an eddy term and a full bridge's mixed decay stay refused
+    with a moving armature on the boosted peak: one line naming the key (exit 2)."""
     from coildrive.config import load_drive
     from coildrive.errors import InputError
 
     text = EXAMPLE.read_text().replace('board = "lab-m32-zener"',
                                        f'board = "{EXAMPLES.parent / "boards" / "lab-m32-zener.toml"}"')
-    cases = {
-        "duty": text.replace("inductance_tolerance = 0.10",
-                             'inductance_tolerance = 0.10\neddy_resistance = "200 ohm"')
-        + '\n[duty]\non_time = "5 ms"\noff_time = "20 ms"\n',
-    }
+    cases = {}
     bridge = Path(_on_bridge(tmp_path)).read_text()
     cases["armature.restitution"] = text.replace('damping = "1 N*s/m"', 'damping = "1 N*s/m"\nrestitution = 0.3').replace(
         "inductance_tolerance = 0.10", 'inductance_tolerance = 0.10\neddy_resistance = "200 ohm"')
@@ -297,7 +308,7 @@ def test_emulated_drive_passes_check_and_a_weak_coil_fails(tmp_path):
     """The virtual bench device runs the design's actuation (the boost, the threshold, the
     armature into the hold): its capture passes ``check``; a coil 40 % over its
     resistance fails it (plumbing: the device shares the design's physics). Firmware in
-    the loop refuses it (one line at ``emulate --firmware``)."""
+    the loop refuses only an eddy term with it (one line at ``emulate --firmware``)."""
     import sys
 
     sys.path.insert(0, str(Path(__file__).parent))
@@ -310,8 +321,13 @@ def test_emulated_drive_passes_check_and_a_weak_coil_fails(tmp_path):
 
     d = design(load_drive(EXAMPLE))
     from coildrive.bench.firmware_device import FirmwareDevice
-    with pytest.raises(ValueError, match="boosted peak"):   # firmware in the loop: not yet
-        FirmwareDevice.check_design(d)
+    FirmwareDevice.check_design(d)
+    eddy = tmp_path / "eddy.toml"
+    eddy.write_text(EXAMPLE.read_text().replace('board = "lab-m32-zener"',
+                                                f'board = "{EXAMPLES.parent / "boards" / "lab-m32-zener.toml"}"')
+                    .replace("inductance_tolerance = 0.10", 'inductance_tolerance = 0.10\neddy_resistance = "200 ohm"'))
+    with pytest.raises(ValueError, match="eddy-current term on a boosted peak"):   # firmware in the loop: not yet
+        FirmwareDevice.check_design(design(load_drive(eddy)))
     dev = VirtualDevice(d.drive, DeviceOptions(noise_codes=1.0, seed=3, hold_time=0.004), design=d)
     assert dev.peak_time < d.pull_in.peak_time_s, "ends at the threshold, before the time-out"
     msgs, _ = run_device(dev, 0.05 + 2 * dev.period, step=0.05)
@@ -413,6 +429,28 @@ def test_an_eddy_term_designs_and_simulates(tmp_path):
     assert np.min(data["position_m"]) == 0.0
 
 
+def _cycled(tmp_path, coil_line: str = ""):
+    """The example with an on/off cycle (20 ms on, 30 ms off, 3 J/K) and ``coil_line`` added
+    to ``[coil]``: ``(path, drive, the hot 9 V corner's loop (R+5 %, L-10 %), reference()'s
+    point there)``."""
+    from coildrive.config import load_drive
+    from coildrive.model.circuit import loop
+
+    body = EXAMPLE.read_text().replace('board = "lab-m32-zener"',
+                                       f'board = "{EXAMPLES.parent / "boards" / "lab-m32-zener.toml"}"')
+    body = body.replace('max_coil_temp = "150 degC"', 'max_coil_temp = "150 degC"\ncapacity = "3 J/K"')
+    if coil_line:
+        body = body.replace("inductance_tolerance = 0.10", "inductance_tolerance = 0.10\n" + coil_line)
+    path = tmp_path / "cycle.toml"
+    path.write_text(body + '\n[duty]\non_time = "20 ms"\noff_time = "30 ms"\n')
+    drive = load_drive(path)
+    lp = loop(drive, np.array([9.0]), np.array([110.0]), np.array([1.05]), np.array([0.9]))
+    g = {"v_on": 9.0, "r_on": float(lp.r_on[0]), "r_off": float(lp.r_off[0]), "v_off": float(lp.v_off[0]),
+         "l_closed": LC * 0.9, "beta": BETA, **{k: POINT[k] for k in ("stroke", "mass", "preload", "rate",
+                                                                      "load", "damping")}}
+    return path, drive, lp, g
+
+
 def test_an_on_off_cycle_s_peak_heat_is_the_run_s_copper_integral(tmp_path):
     """[duty] with the moving armature on the boosted peak: the peak's copper heat at the hot
     9 V corner is ``R_coil int i^2 dt`` of the run to the highest trip current, from the
@@ -421,24 +459,13 @@ def test_an_on_off_cycle_s_peak_heat_is_the_run_s_copper_integral(tmp_path):
     trip, and the open coil's stiff RL step over the conversion (handbook RL step,
     ``i = V/R + (i0 - V/R) exp(-t R/L)``), within 3e-5; and the example with a cycle designs
     from the command line with that peak energy in its JSON."""
-    from coildrive.config import load_drive
     from coildrive.design.boost import conversion_period, threshold
     from coildrive.design.boost_armature import peak_heat
-    from coildrive.model.circuit import loop
 
-    body = EXAMPLE.read_text().replace('board = "lab-m32-zener"',
-                                       f'board = "{EXAMPLES.parent / "boards" / "lab-m32-zener.toml"}"')
-    body = body.replace('max_coil_temp = "150 degC"', 'max_coil_temp = "150 degC"\ncapacity = "3 J/K"')
-    path = tmp_path / "cycle.toml"
-    path.write_text(body + '\n[duty]\non_time = "20 ms"\noff_time = "30 ms"\n')
-    drive = load_drive(path)
-    lp = loop(drive, np.array([9.0]), np.array([110.0]), np.array([1.05]), np.array([0.9]))
+    path, drive, lp, g = _cycled(tmp_path)
     got = float(peak_heat(drive, lp, 0.01)[0])
     s = drive.supply
     trip, dt = threshold(drive)[2], conversion_period(drive)
-    g = {"v_on": 9.0, "r_on": float(lp.r_on[0]), "r_off": float(lp.r_off[0]), "v_off": float(lp.v_off[0]),
-         "l_closed": LC * 0.9, "beta": BETA, **{k: POINT[k] for k in ("stroke", "mass", "preload", "rate",
-                                                                      "load", "damping")}}
     want = 0.0
     for sign in (-1, 1):
         v_b = s.boost * (1 + sign * s.boost_tolerance)
@@ -495,9 +522,9 @@ def test_the_monte_carlo_flies_each_sample_from_its_own_boost():
                                       ("hold.mode", 'mode = "current"')])
 def test_a_regulated_hold_where_the_armature_seats_within_the_peak(tmp_path, key, line):
     """A closed-loop or a current-mode hold: with the example's threshold the armature is still
-    in flight when the peak ends at its latest corner (the loop's transient, or the
-    thresholds' switching, after the threshold would carry it: refused in one line naming
-    that corner, exit 2); with the
+    in flight when the peak ends at its latest corner -- the current-mode thresholds'
+    switching after the threshold would carry it: refused in one line naming that corner,
+    exit 2 (the closed loop carries it with its own PI: the test below); with the
     threshold at 1.8 x pull-in on a board with 3.3 A full scale it seats within the peak at
     every corner and designs (exit 0), its latest seat in the peak against solve_ivp
     (DOP853) on the equations written afresh within 1e-5 (the hold plays no part there),
@@ -509,9 +536,10 @@ def test_a_regulated_hold_where_the_armature_seats_within_the_peak(tmp_path, key
     refused = tmp_path / "refused.toml"
     refused.write_text(text.replace('board = "lab-m32-zener"',
                                     f'board = "{EXAMPLES.parent / "boards" / "lab-m32-zener.toml"}"'))
-    r = run_cli("design", str(refused), cwd=EXAMPLES)
-    assert r.returncode == 2 and key in r.stderr and "not yet seated" in r.stderr
-    assert r.stderr.count("\n") == 1
+    if key == "hold.mode":
+        r = run_cli("design", str(refused), cwd=EXAMPLES)
+        assert r.returncode == 2 and key in r.stderr and "not yet seated" in r.stderr
+        assert r.stderr.count("\n") == 1
     path = tmp_path / "loop.toml"
     path.write_text(text.replace('board = "lab-m32-zener"',
                                  f'board = "{EXAMPLES.parent / "boards" / "relay-12bit-resistor.toml"}"')
@@ -538,3 +566,171 @@ def test_a_regulated_hold_where_the_armature_seats_within_the_peak(tmp_path, key
                 "--csv", str(csv), cwd=EXAMPLES)
     assert r.returncode == 0, r.stderr
     assert line.split('"')[1] in r.stderr and "seated at" in r.stderr
+
+
+def test_a_high_threshold_s_short_hold_passes_check_where_it_has_not_settled(tmp_path):
+    """The example with a 1.8 x threshold on relay-12bit-resistor (the drive's own diode
+    path): the peak ends at 1.35 A, and 4 ms of hold is too short for the seated coil
+    (L/R ~ 1.4 ms) to settle to its 0.53 A hold. The emulated capture's hold mean over
+    the last half of the hold is ~0.65 A; check predicts the model's mean over that same
+    stretch (not the steady state, which failed it by 21 %) and passes. Plumbing (the
+    device shares the model); the window's arithmetic is checked against the averaged
+    PWM model in tests/test_check_fit.py."""
+    import sys
+
+    sys.path.insert(0, str(Path(__file__).parent))
+    from test_emulator_device import capture_of, run as run_device
+
+    from coildrive.bench.check import check_capture
+    from coildrive.bench.device import DeviceOptions, VirtualDevice
+    from coildrive.config import load_drive
+    from coildrive.design import design
+
+    board = EXAMPLES.parent / "boards" / "relay-12bit-resistor.toml"
+    path = tmp_path / "v.toml"
+    path.write_text(EXAMPLE.read_text().replace('board = "lab-m32-zener"', f'board = "{board}"')
+                    .replace("current_margin = 1.5 ", "current_margin = 1.8 "))
+    d = design(load_drive(path))
+    assert d.boost.threshold_a == pytest.approx(1.35)
+    dev = VirtualDevice(d.drive, DeviceOptions(noise_codes=1.0, seed=3, hold_time=0.004), design=d)
+    msgs, _ = run_device(dev, 0.05 + 2 * dev.period, step=0.05)
+    report = check_capture(capture_of(msgs, tmp_path / "c.cdcap"), d)
+    row = next(i for i in report.items if i.name == "hold_mean")
+    assert report.ok, [(i.name, i.status, i.detail) for i in report.items if i.status == "FAIL"]
+    # (measured 0.6454 A, predicted 0.6462 A; the steady state there is 0.533 A)
+    assert row.measured == pytest.approx(row.predicted, rel=0.02) and row.predicted > 1.15 * 0.533
+
+
+@pytest.mark.compiler
+@pytest.mark.parametrize("topology", ["low_side", "full_bridge"])
+def test_firmware_in_the_loop_flies_the_armature_and_passes_check(tmp_path, topology):
+    """The reference C driver (gcc) in the loop: the device flies the armature as the
+    driver switches (the boost until the conversion that reads the threshold, then the
+    hold's PWM from the main supply, bench/boost_flight.py) and ``check`` (a subprocess)
+    passes at the corners where the hardware is worst: the hottest coil at 9 V, whose
+    armature the hold carries onto the seat after the threshold (seated_time n/a: the
+    current falls there, no dip), and the coldest at 16 V (the most current); on the full
+    bridge (its slow decay in the hold, its fast decay in the release) the hot corner
+    (lean). Plumbing: the device shares the design's model, checked against solve_ivp above."""
+    from driver_harness import checked_rows, example_design, loop_captures
+
+    from coildrive.bench.messages import EventKind
+    from coildrive.config import load_drive
+    from coildrive.design import design
+
+    if topology == "low_side":
+        d = example_design("fast-valve-boost-armature-12v")
+        drive = tmp_path / "drive.toml"
+        drive.write_text(EXAMPLE.read_text().replace(
+            'board = "lab-m32-zener"', f'board = "{EXAMPLES.parent / "boards" / "lab-m32-zener.toml"}"'))
+    else:
+        drive = Path(_on_bridge(tmp_path))
+        d = design(load_drive(drive))
+    temps = [c.coil_temp_c for c in d.corners]
+    runs = [(d.drive.supply.min, max(temps), None), (d.drive.supply.max, min(temps), None)]
+    runs = runs if topology == "low_side" else runs[:1]
+    for k, ((path, cap), (_, temp, _)) in enumerate(zip(loop_captures(tmp_path, d, runs, hold_time=0.01), runs)):
+        kinds = [int(e.kind) for e in cap.events]
+        assert int(EventKind.FAULT) not in kinds and int(EventKind.PEAK_END) in kinds, kinds
+        rows = checked_rows(path, drive, temp)
+        assert {n for n, i in rows.items() if i["status"] == "pass"} >= {
+            "pull_in_time", "peak_duration", "hold_mean", "release_time"}
+        if k == 0:   # seated in the hold, after the threshold
+            assert rows["seated_time"]["status"] == "n/a" and "in the hold" in rows["seated_time"]["detail"]
+            assert rows["seated_time"]["predicted"] > rows["peak_duration"]["measured"]
+
+
+@pytest.mark.compiler
+@pytest.mark.parametrize("line, hot, margin, board", [
+    ('mode = "current"', True, "1.8", "relay-12bit-resistor"),
+    ('regulation = "closed_loop"', False, "1.8", "relay-12bit-resistor"),
+    ('regulation = "closed_loop"', True, "1.5", "lab-m32-zener")], ids=["current", "closed_loop", "loop_in_flight"])
+def test_regulated_holds_in_the_loop(tmp_path, line, hot, margin, board):
+    """The regulated holds after the boosted peak with the compiled driver in the loop, at
+    one worst corner each (lean): a 1.8 x threshold on relay-12bit-resistor (the drive's own
+    diode path) seats the armature within the peak at every corner, and the current-mode
+    hold (the hottest coil at 9 V) and the closed loop (the coldest at 16 V) pass ``check``
+    with the seat's dip timed (the flight handed to the seated coil's closed form before
+    the regulation takes over); the example's own 1.5 x threshold under the closed loop at
+    the hottest coil at 9 V, where the loop's PI carries the armature in flight onto the
+    seat, passes too (no dip to time there)."""
+    from driver_harness import checked_rows, loop_captures
+
+    from coildrive.bench.messages import EventKind
+    from coildrive.config import load_drive
+    from coildrive.design import design
+
+    drive = tmp_path / "drive.toml"
+    drive.write_text(EXAMPLE.read_text().replace('board = "lab-m32-zener"',
+                                                 f'board = "{EXAMPLES.parent / "boards" / board}.toml"')
+                     .replace("current_margin = 1.5 ", f"current_margin = {margin} ")
+                     .replace('frequency = "60 kHz"', f'frequency = "60 kHz"\n{line}'))
+    d = design(load_drive(drive))
+    assert d.armature is not None and d.hold.regulation in ("current", "closed_loop")
+    temps = [c.coil_temp_c for c in d.corners]
+    runs = [(d.drive.supply.min, max(temps), None) if hot else (d.drive.supply.max, min(temps), None)]
+    (path, cap), = loop_captures(tmp_path, d, runs, hold_time=0.01)
+    kinds = [int(e.kind) for e in cap.events]
+    assert int(EventKind.FAULT) not in kinds and int(EventKind.PEAK_END) in kinds, kinds
+    rows = checked_rows(path, drive, runs[0][1])
+    assert {n for n, i in rows.items() if i["status"] == "pass"} >= {
+        "pull_in_time", "peak_duration", "hold_mean", "release_time"}
+    assert rows["seated_time"]["status"] == ("pass" if margin == "1.8" else "info")
+
+
+def test_a_closed_loop_carries_the_armature_in_flight_with_its_own_duties(tmp_path):
+    """The example with a closed-loop hold: the armature is still in flight when the peak
+    ends at most corners, and the loop -- preloaded at the threshold's conversion, its
+    integer PI cutting the duty while the reading is above the set-point -- carries it on
+    (no longer refused). The design's latest seat at the corner it names against solve_ivp
+    (DOP853) of the equations written afresh, each period's duty from the PI on the
+    current converted mid-period (the header's integer arithmetic, as
+    tests/test_driver_loop.reference checks the C driver against; codes from the board's
+    sense chain, floor), within 1e-5 (measured 4.2e-6; the design's integrator at rtol
+    1e-7); the loop's seat comes later than under its settled duty, which the voltage-mode
+    design would take."""
+    import types
+
+    from test_driver_loop import reference as pi_compares
+
+    from coildrive.config import load_drive
+    from coildrive.model.circuit import loop
+
+    board = EXAMPLES.parent / "boards" / "lab-m32-zener.toml"
+    path = tmp_path / "closed.toml"
+    path.write_text(EXAMPLE.read_text().replace('board = "lab-m32-zener"', f'board = "{board}"')
+                    .replace('frequency = "60 kHz"', 'frequency = "60 kHz"\nregulation = "closed_loop"'))
+    r = run_cli("design", str(path), "--json", cwd=EXAMPLES)
+    assert r.returncode == 0, r.stderr
+    d = json.loads(r.stdout)
+    a = d["armature"]
+    assert a["seated_corners"] == a["corners"] and a["seated_in_peak_corners"] < a["corners"]
+    corner = next(c for c in d["corners"] if c["label"] == a["seat_corner"])
+    drive = load_drive(path)
+    b = drive.board
+    assert not b.sense.resistance_tolerance and not b.sense.gain_tolerance   # the reading is the current
+    cpa = b.sense.resistance * b.sense.gain / b.adc.reference * 2**b.adc.bits
+    r_loop = types.SimpleNamespace(**d["closed_loop"])
+    counts = d["timer"]["period_ticks"]
+    th_code = d["boost"]["threshold_code"]
+
+    def duty_of(samples):
+        codes = [th_code] + [min(max(math.floor(i * cpa), 0), 2**b.adc.bits - 1) for i in samples]
+        return pi_compares(r_loop, codes)[-1] / counts
+
+    lf = float(corner["inductance_h"]) / drive.armature.inductance_closed     # the corner's L factor
+    rf = 1.05 if "R+5%" in corner["label"] else 0.95 if "R-5%" in corner["label"] else 1.0
+    lp = loop(drive, np.array([corner["supply_v"]]), np.array([corner["coil_temp_c"]]), np.array([rf]),
+              np.array([lf]))
+    g = {"v_on": corner["supply_v"], "r_on": float(lp.r_on[0]), "r_off": float(lp.r_off[0]),
+         "v_off": float(lp.v_off[0]), "l_closed": LC * lf, "beta": BETA,
+         **{k: POINT[k] for k in ("stroke", "mass", "preload", "rate", "load", "damping")}}
+    s = drive.supply
+    boost = (s.boost * (1 - s.boost_tolerance), s.boost_capacitance * (1 - s.boost_capacitance_tolerance),
+             s.boost_resistance)
+    period = 1 / d["hold"]["frequency_hz"]
+    ref = reference(g, *boost, d["boost"]["threshold_a"], 0.0, period, 0.01, control=(duty_of, 0.5))
+    assert ref["trip"] < ref["seat"]
+    assert a["seat_time_s"] == pytest.approx(ref["seat"], rel=1e-5)       # scipy solve_ivp
+    settled = reference(g, *boost, d["boost"]["threshold_a"], corner["hold_duty"], period, 0.01)
+    assert settled["seat"] < ref["seat"]

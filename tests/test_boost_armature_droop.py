@@ -218,6 +218,17 @@ def test_design_follows_the_armature_onto_the_drooping_bus(tmp_path, thin):
     assert "moving armature with an eddy-current term" in str(err.value)
 
 
+def test_firmware_in_the_loop_refuses_the_drooping_main_supply_in_one_line(thin):
+    """The compiled driver's device flies a boosted armature's hold from a stiff main
+    supply, so on a drooping one ``emulate --firmware`` refuses it (one line) rather than
+    check against a bus it does not model."""
+    from coildrive.bench.firmware_device import FirmwareDevice
+
+    with pytest.raises(ValueError) as err:
+        FirmwareDevice.check_design(thin)
+    assert "drooping main supply" in str(err.value) and "\n" not in str(err.value)
+
+
 def test_emulated_drive_passes_check(tmp_path, thin):
     """The virtual bench device runs the drooping drive's actuation (the boost, the
     threshold, the armature into the hold): its capture passes ``check`` (plumbing: the

@@ -12,6 +12,7 @@ from __future__ import annotations
 import json
 import tomllib
 
+import numpy as np
 import pytest
 
 from conftest import EXAMPLES, run_cli
@@ -259,3 +260,37 @@ def test_plot_draws_the_acceptance_bands(demo):
     off = report.waveform.events["off"]
     assert x_extent(spans["release window"]) == pytest.approx(
         ((off + rows["release_time"].low) * 1e3, (off + rows["release_time"].high) * 1e3))
+
+
+def test_a_short_hold_is_predicted_over_the_window_the_capture_measures(demo):
+    """A hold too short to settle (4 ms after the demo's peak, which ends far above the
+    hold): ``check`` predicts the mean over the last half of the hold (whole PWM periods
+    ending at the switch-off), as the analysis measures it, not the steady state. Against
+    the state-space averaged model of the PWM hold (hand-worked; common practice for a
+    switch whose period is short against L/R): in continuous conduction the period-mean
+    current obeys ``L di/dt = D (V - R_on i) - (1 - D)(R_off i + V_f)``, a first-order lag
+    to ``i_ss`` with ``tau = L / (D R_on + (1 - D) R_off)``, so its mean over ``[a, b]`` is
+    ``i_ss + (i_0 - i_ss) tau (e^{-a/tau} - e^{-b/tau}) / (b - a)`` from the hold's start
+    current ``i_0``: within 0.5 % (measured 0.12 %); a 40 ms hold within 1e-4 (6e-7), and
+    that is the steady state within 0.5 %."""
+    import math
+
+    from coildrive.bench.check import OperatingPoint, predict
+    from coildrive.model.circuit import loop
+
+    point = OperatingPoint(24.0, 20.0, "", "")
+    lp = loop(demo.drive, 24.0, 20.0)
+    v, r_on, r_off, v_f, ind = (float(x) for x in (lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance))
+    for hold, rel in ((0.004, 0.005), (0.04, 1e-4)):
+        pred, w = predict(demo, point, hold)
+        d = pred["hold_duty"]    # the firmware's duty at 24 V (its supply table's entry)
+        g = d * r_on + (1 - d) * r_off
+        i_ss, tau = (d * v - (1 - d) * v_f) / g, ind / g
+        h0, off = w.events["hold"], w.events["off"]
+        period = 1.0 / pred["hold_frequency_hz"]
+        a = off - math.floor((off - 0.5 * (h0 + off)) / period) * period - h0
+        b = off - h0
+        i0 = float(np.interp(h0, w.time, w.current))
+        ref = i_ss + (i0 - i_ss) * tau * (math.exp(-a / tau) - math.exp(-b / tau)) / (b - a)
+        assert pred["hold_mean_a"] == pytest.approx(ref, rel=rel)         # averaged model, hand-worked
+    assert abs(ref - i_ss) < 0.005 * i_ss

@@ -8,7 +8,10 @@ range -- with the design's peak time, hold duty and hold frequency. The coil is 
 to be at that temperature throughout (a bench actuation, not the design's settled hot
 coil). Closed-form figures come from :func:`coildrive.design.evaluate.evaluate`; with an
 ``[armature]`` the times to a current come from the model waveform
-(:func:`coildrive.model.waveform.actuation`) and the seat from the armature model.
+(:func:`coildrive.model.waveform.actuation`) and the seat from the armature model. A PWM
+hold's mean is the model waveform's over the stretch the analysis measures (the last half
+of the hold, whole periods): the steady state where the hold has settled by then, and
+what the window really holds where it has not (a short hold after a high peak).
 
 Each figure passes when every actuation's value lies inside ``predicted x (1 +/- tol)``
 widened to at least two resolution steps of the measurement (two sample periods, or
@@ -259,6 +262,25 @@ def _waveform_spread_ripple(w, frequency: float) -> float:
     return float(np.sqrt(12.0) * np.std(np.interp(grid, np.asarray(w.time), np.asarray(w.current))))
 
 
+def _waveform_hold_mean(w, frequency: float) -> float | None:
+    """The hold's mean current (A) over the stretch the capture's analysis measures it on
+    (:func:`coildrive.bench.analysis` ``_hold``): the last half of ``w``'s hold, cut to
+    whole PWM periods ending at the switch-off (the half itself where it holds none),
+    sampled evenly in time. Where the hold has settled this is its periodic steady state's
+    mean; where it has not (a short hold after a peak that ended far above it: a boosted
+    peak's threshold, a high pull-in current) it is what the capture's window holds, which
+    the steady state is not. ``None`` without a hold."""
+    t_on, t_off = w.events.get("hold"), w.events.get("off")
+    if t_on is None or t_off is None or not t_off > t_on:
+        return None
+    period = 1.0 / frequency
+    mid = 0.5 * (t_on + t_off)
+    whole = math.floor((t_off - mid) / period)
+    start = t_off - whole * period if whole >= 1 else mid
+    grid = start + (np.arange(4000) + 0.5) * (t_off - start) / 4000
+    return float(np.mean(np.interp(grid, np.asarray(w.time), np.asarray(w.current))))
+
+
 def _bench_drive(drive: Drive) -> Drive:
     """The drive as a bench actuation sees it: the coil at the point's temperature (no
     self-heating), a boost at its nominal parts."""
@@ -344,6 +366,12 @@ def predict(design, point: OperatingPoint, hold_time: float) -> tuple[dict, obje
         pred["release_time_s"] = _waveform_crossing(w, drive.release.current, w.events["off"], False)
     if drive.coil.eddy_resistance:
         pred["hold_ripple_a"] = _waveform_spread_ripple(w, freq)
+    if design.hold.current_mode is None:
+        # the capture's mean is over the hold's last half: where the current has not
+        # settled there yet, the model's mean over that stretch, not its steady state
+        window = _waveform_hold_mean(w, freq)
+        if window is not None:
+            pred["hold_mean_a"] = window
     if drive.armature is not None:   # the seat from the dip
         pin = getattr(getattr(res, "armature", None), "pull_in", None)
         dip = getattr(pin, "dip_time", None)
@@ -517,8 +545,15 @@ def check_capture(capture: Capture, design, tolerances: Tolerances | None = None
                           extra=f" (to {drive.pull_in.current:.4g} A)", numbers=numbers))
         seated = [x.seated_time_s for x in acts]
         if drive.armature is not None:
-            items.append(_row("seated_time", "s", seated, pred["seated_time_s"], tol.seated_time,
-                              2.0 * period, extra=" (bottom of the current dip)", numbers=numbers))
+            seat = pred["seated_time_s"]
+            # after a boosted peak's threshold the hold's PWM carries the armature on: the
+            # current falls from the threshold there, and the seat makes no dip to time
+            in_hold = design.boost is not None and seat is not None and seat > pred["peak_duration_s"]
+            items.append(_row("seated_time", "s", seated, seat, tol.seated_time,
+                              2.0 * period, extra=" (bottom of the current dip)", numbers=numbers,
+                              na_reason=f"the model seats the armature at {seat * 1e3:.4g} ms, in the hold after "
+                              "the boosted peak's threshold, where the current falls under the PWM: no dip "
+                              "to time" if in_hold else None))
         else:
             shown = [v for v in seated if v is not None]
             items.append(CheckItem("seated_time", INFO, _first(seated), None, None, None, "s",

@@ -41,7 +41,10 @@ between peaks recharges at ``boost_power`` (:func:`coildrive.model.boost.recharg
 the main supply's diode taking over below the bus is left out (the design's
 ``boost_droop`` check keeps the capacitor above it). On a flux-linkage curve the boost's
 run is :mod:`coildrive.model.flux_boost`'s, stepped from the current and the capacitor's
-voltage at its switch-on.
+voltage at its switch-on. With an ``[armature]`` on the boosted peak the armature is flown
+as the driver switches (:mod:`coildrive.bench.boost_flight`: the boost, the threshold's
+conversion, the hold's PWM edges) until it rests on the seat, then the seated coil's closed
+form.
 
 A full bridge's mixed-decay hold (``hold.fast_fraction``): each off-time decays through
 the fast path (all four open) up to the timer count the driver gives through its
@@ -171,7 +174,12 @@ class FirmwareDevice(LineOutput):
                        for path in ("hold", "release")}
         self._supply_steps: list[tuple[float, float]] = []
         self.trace: list[tuple[float, float, int]] | None = [] if trace else None
-        self._flight = self._pull_in_flight(faulty, design, l_scale)
+        #: a boosted peak with a moving armature: flown as the driver switches (boost_flight)
+        self._arm = None
+        if design.boost is not None and faulty.armature is not None and o.fault != "open":
+            from .boost_flight import BoostFlight
+            self._arm = BoostFlight(faulty, self._loops["hold"], self._loops["release"], l_scale)
+        self._flight = None if self._arm is not None else self._pull_in_flight(faulty, design, l_scale)
         self._flight_t0: float | None = None
         self.sample_rate = float(board.adc.sample_rate)
         self.tick_rate = float(board.tick.rate)
@@ -275,9 +283,14 @@ class FirmwareDevice(LineOutput):
             raise ValueError("firmware in the loop does not run a moving [armature] with an eddy-current "
                              "term on a drooping bus (supply.source_resistance) yet: emulate it without "
                              "--firmware (the model's device)")
-        if d.armature is not None and d.supply.boosted:
-            raise ValueError("firmware in the loop does not run a moving [armature] on a boosted peak "
-                             "(supply.boost) yet: emulate it without --firmware (the model's device)")
+        if d.armature is not None and d.supply.boosted and d.supply.droops:
+            raise ValueError("firmware in the loop does not run a moving [armature] on a boosted peak on a "
+                             "drooping main supply (supply.source_resistance) yet (its device flies the hold "
+                             "from a stiff main supply): emulate it without --firmware (the model's device)")
+        if d.armature is not None and d.supply.boosted and d.coil.eddy_resistance:
+            raise ValueError("firmware in the loop does not run a moving [armature] with an eddy-current "
+                             "term on a boosted peak (supply.boost) yet: emulate it without --firmware "
+                             "(the model's device)")
 
     def _pull_in_flight(self, faulty, design, l_scale):
         """With an armature (not stuck): ``(time, current)`` of the pull-in with the switch
@@ -466,6 +479,8 @@ class FirmwareDevice(LineOutput):
         i0 = self._i
         bypass = self._bridge_slow(enable) if self._bridge is not None else (out >> 25 & 1 or not self._split())
         full_on = bool(enable) and compare >= self.period_counts
+        if self._arm is not None and self._arm.active:
+            return self._step_flight(t0, on_end, bypass, bool(enable))
         if self._flight is not None and full_on and self._state == STATE_PEAK and self._flight_t0 is None \
                 and i0 < 1e-9:
             self._flight_t0 = t0             # the pull-in starts from rest
@@ -582,11 +597,18 @@ class FirmwareDevice(LineOutput):
             b = self._boost
             late = (s, float(current(s)), boost_model.with_voltage(b, self.boost_voltage(s)))
             off_current = current
+            if self._arm is not None:       # the armature flown from rest, the boost on
+                self._arm.start(self.boost_voltage(s))
+                flown = self._arm.run(s, t0 + T, t0 + T, True, "hold")
 
-            def current(x):                 # noqa: F811 -- this period's current from here on
-                x = np.asarray(x, float)
-                return np.where(x < s, off_current(x),
-                                bm.state(np.maximum(x - s, 0.0), late[2], late[1])[0])
+                def current(x):             # noqa: F811 -- this period's current from here on
+                    x = np.asarray(x, float)
+                    return np.where(x < s, off_current(x), flown(x))
+            else:
+                def current(x):             # noqa: F811 -- this period's current from here on
+                    x = np.asarray(x, float)
+                    return np.where(x < s, off_current(x),
+                                    bm.state(np.maximum(x - s, 0.0), late[2], late[1])[0])
         self._outputs = new
         if self._mixed:
             self._fast_end = int(self.lib.fil_fast_end())   # the next period's
@@ -599,13 +621,67 @@ class FirmwareDevice(LineOutput):
             self._boost_v = float(bm.state(min(end, on_end) - t0, boost, i0)[1])
             self._boost_t = end
         elif late is not None:
-            self._boost_v = float(bm.state(t0 + T - late[0], late[2], late[1])[1])
+            self._boost_v = float(bm.state(t0 + T - late[0], late[2], late[1])[1]) if self._arm is None \
+                else self._arm.u
             self._boost_t = t0 + T
+            if self._arm is not None and self._arm.settle(True):
+                self._i = self._arm.current
         if self.trace is not None:      # the period's mean: midpoint rule, 64 points
             x = t0 + (np.arange(64) + 0.5) * (T / 64)
             self.trace.append((t0, float(np.mean(current(x))), self._state))
         if on_end < t0 + T or not full_on:
             self._flight_t0 = None           # seated (or cut short): the RL model of the seated coil
+        self._t = t0 + T
+        self._take_frames()
+        return T
+
+    def _step_flight(self, t0: float, on_end: float, bypass: bool, enable: bool) -> float:
+        """One PWM period with a boosted peak's armature in flight (:mod:`.boost_flight`):
+        flown to the conversion with the outputs the driver set, then on to the period's end
+        with the ones it sets there (the boost off, the switch off at once; a full bridge's
+        slow decay that it ends opens all four); on the seated coil's closed form from the
+        period the armature rests on the seat."""
+        T, fl = self.pwm_period, self._arm
+        boosting = enable and bool(self._outputs >> 26 & 1)
+        s = t0 + (0.5 * (on_end - t0) if self.sense_in_switch and on_end > t0 else 0.5 * T)
+        ticks = []
+        while self._tick / self.tick_rate < t0 + T:
+            ticks.append(self._tick / self.tick_rate)
+            self._tick += 1
+
+        def sensing(flown, until):
+            def sensed(x):
+                i = flown(x)
+                return np.where(np.asarray(x) < until, i, 0.0) if self.sense_in_switch else i
+            return sensed
+
+        path = "hold" if bypass else "release"
+        first = fl.run(t0, s, on_end, boosting, path)
+        self._run_samples(t0, s, sensing(first, on_end))
+        for tt in [x for x in ticks if x < s]:
+            self._do_tick(tt)
+        code = int(self._codes(np.array([float(sensing(first, on_end)(s))]))[0])
+        self.lib.fil_conversion(code, self._supply_code)
+        new = int(self.lib.fil_outputs())
+        if not new >> 24 & 1 and on_end > s:
+            on_end = s                      # the switch output is disabled at once
+        if self._bridge is not None and bypass and not new >> 24 & 1:
+            path = "release"                # the bridge opens all four: fast decay from here
+        still = boosting and bool(new >> 26 & 1 and new >> 24 & 1)
+        if boosting and not still:          # the boost off now: it recharges from here
+            self._boost_v, self._boost_t = fl.u, s
+        second = fl.run(s, t0 + T, on_end, still, path)
+        self._outputs = new
+        self._run_samples(s, t0 + T, sensing(second, on_end))
+        for tt in [x for x in ticks if x >= s]:
+            self._do_tick(tt)
+        if still:
+            self._boost_v, self._boost_t = fl.u, t0 + T
+        self._i = fl.current
+        if self.trace is not None:      # the period's mean: midpoint rule, 64 points
+            x = t0 + (np.arange(64) + 0.5) * (T / 64)
+            self.trace.append((t0, float(np.mean(np.where(x < s, first(x), second(x)))), self._state))
+        fl.settle(bool(new >> 24 & 1))
         self._t = t0 + T
         self._take_frames()
         return T
@@ -620,6 +696,9 @@ class FirmwareDevice(LineOutput):
         (the high code's current switch on, the low code's switch off: code ``k`` is
         ``k`` amps-per-code, the design's convention) and the off-time one-shot's expiry
         (its counts at the design's off-time prescaler on the timer clock)."""
+        if self._arm is not None and self._arm.active:
+            raise RuntimeError("the armature is still in flight when the current-mode hold starts: a hold "
+                               "switched by thresholds with the armature moving is not modelled")
         T = self.pwm_period
         end, conv = t0 + T, t0 + 0.5 * T
         self._flight_t0 = None     # switched by thresholds: the seated coil (any pull-in run is over)

@@ -32,6 +32,11 @@ the lowest bus is the lower of two runs' (:func:`coildrive.design.supply.armatur
 earliest hand-over) and a fifth, the most current (the boost at its highest until the
 current reaches the most the peak can end with, ``end_current`` -- where that run never
 gets there, the highest trip current -- then the hold on the bus).
+
+Under a closed-loop hold the pull-in run is redone where the armature is still in flight
+when the peak ends, each hold period's duty the driver's integer PI on the period's
+conversion (:class:`LoopControl`, :func:`loop_pull_in`); a current-mode hold needs it seated
+within the peak (:func:`require_seated_in_peak`).
 """
 
 from __future__ import annotations
@@ -185,7 +190,7 @@ def main_bus(drive: Drive, p: ArmatureParams, i_top) -> tuple[ArmatureParams, np
 
 
 def peak_heat(drive: Drive, lp, peak_time) -> np.ndarray:
-    """J the coil's copper takes in one boosted peak with the moving armature at the points
+    """J that heats the coil in one boosted peak with the moving armature at the points
     of ``lp`` (an on/off cycle's peak, :func:`coildrive.design.thermal_cycle.peak_heat`):
     ``R_coil int i^2 dt`` of the armature's run from the boost (the run's own ``sq``,
     :func:`~coildrive.model.armature_runs.pull_in` with the highest trip current) to the
@@ -193,14 +198,33 @@ def peak_heat(drive: Drive, lp, peak_time) -> np.ndarray:
     (:func:`_end`'s stiff open-coil bound), from the boost at its lowest (the longest peak)
     and at its highest (the most current), the larger. Where the run never reaches the
     highest trip current the current stays below it for the whole time-out ``peak_time``
-    s: ``R_coil i_trip^2 peak_time`` bounds it. A linear coil without an eddy term."""
+    s: ``R_coil i_trip^2 peak_time`` bounds it.
+
+    With an eddy term (``i`` the terminal current the winding carries) the core's loss
+    ``int v_m^2 / R_e dt`` is added, bounded from above by the first law at the trip: what
+    the boost gave (``1/2 C_b (V_b^2 - u^2)``, an ideal boost ``V_b int i dt``) less the
+    loop's copper ``(R_on + R_b) int i^2 dt``, the field's ``lambda i_m / 2`` (linear
+    ``L(x)``), the armature's kinetic energy and the spring's and load's work -- the
+    damping's heat, not known without integrating it, is left in, so the bound is exact
+    with no damping and above the loss by that heat otherwise. Over the conversion after
+    the trip (and over the time-out where the trip never comes) the branch's voltage
+    ``v_m = R_e (u - R i_m) / (R + R_e)`` is at most ``R_e max(V_b, R i_m) / (R + R_e)`` in
+    size, ``i_m`` at most the open branch's stiff rise from the trip (where never, at most
+    ``(R + R_e) i_trip / R_e``, the terminal current being below ``i_trip``)."""
+    from ..model.eddy import EddyCoil
     from .boost import threshold
 
-    fields = ("v_on", "r_on", "r_off", "v_off", "inductance", "r_coil", "supply")
-    shape = np.broadcast_shapes(*(np.shape(getattr(lp, f)) for f in fields))
-    flat = Loop(*(np.ravel(np.broadcast_to(getattr(lp, f), shape)).astype(float) for f in fields))
-    # (the loop's inductance is the seated one x the tolerance factor: circuit.loop)
-    p = params_from_loop(drive.armature, flat, flat.inductance / drive.armature.inductance_closed)
+    eddy = isinstance(lp.inductance, EddyCoil)
+    fields = ("v_on", "r_on", "r_off", "v_off", "r_coil", "supply")
+    ind = lp.inductance.magnetising if eddy else lp.inductance
+    shape = np.broadcast_shapes(*(np.shape(getattr(lp, f)) for f in fields), np.shape(ind))
+    flat = {f: np.ravel(np.broadcast_to(getattr(lp, f), shape)).astype(float) for f in fields}
+    ind = np.ravel(np.broadcast_to(np.asarray(ind, float), shape))
+    r_e = float(drive.coil.eddy_resistance) if eddy else 0.0
+    # (the loop's inductance, the magnetising branch's with an eddy term, is the seated one
+    # x the tolerance factor: circuit.loop)
+    flat = Loop(flat["v_on"], flat["r_on"], flat["r_off"], flat["v_off"], ind, flat["r_coil"], flat["supply"])
+    p = params_from_loop(drive.armature, flat, ind / drive.armature.inductance_closed, r_e)
     i_trip = threshold(drive)[2]
     dt = conversion_period(drive)
     t_out = np.ravel(np.broadcast_to(np.asarray(peak_time, float), shape))
@@ -210,9 +234,32 @@ def peak_heat(drive: Drive, lp, peak_time) -> np.ndarray:
         pin = pull_in(pb, trip=i_trip)
         _, i_end, _, _ = _end(drive, pb, pin, i_trip)
         hit = np.isfinite(pin.trip_time)
-        sq = np.where(hit, np.where(hit, pin.trip_state[4], 0.0) + i_end**2 * dt, i_trip**2 * t_out)
-        heat = np.maximum(heat, sq)
-    return (flat.r_coil * heat).reshape(shape)
+        y = np.where(hit, pin.trip_state, 0.0)
+        sq = np.where(hit, y[4] + i_end**2 * dt, i_trip**2 * t_out)
+        total = flat.r_coil * sq
+        if eddy:
+            total = total + np.where(hit, _core_loss(pb, y) + _branch_bound(pb, r_e, rise_current(
+                dt, pb.current(y[0], y[1]), pb.v_on, pb.r_on, pb.coil_open)) ** 2 * dt / r_e,
+                _branch_bound(pb, r_e, (pb.r_on + r_e) * i_trip / r_e) ** 2 * t_out / r_e)
+        heat = np.maximum(heat, total)
+    return heat.reshape(shape)
+
+
+def _core_loss(pb: ArmatureParams, y) -> np.ndarray:
+    """J: the eddy resistance's heat in the run to the state ``y`` (rows of the run),
+    bounded from above by the first law (:func:`peak_heat`): the boost's energy less the
+    loop's copper, the field's, the kinetic energy and the spring's and load's work."""
+    lam, x, v, _, sq = y[:5]
+    travel = pb.stroke - x
+    work = (pb.preload + pb.load) * travel + 0.5 * pb.rate * travel**2
+    field = 0.5 * lam * pb.current(lam, x)
+    return np.maximum(boost_energy(pb, y) - pb.r_on * sq - field - 0.5 * pb.mass * v**2 - work, 0.0)
+
+
+def _branch_bound(pb: ArmatureParams, r_e: float, i_m) -> np.ndarray:
+    """V: the largest size of the magnetising branch's voltage ``R_e (u - R i_m)/(R + R_e)``
+    with the boost at most at its full ``V_b`` and the branch's current at most ``i_m`` A."""
+    return r_e * np.maximum(pb.v_on, pb.r_on * np.asarray(i_m, float)) / (pb.r_on + r_e)
 
 
 def sampled_pull_in(drive: Drive, res, v_factor, c_factor, duty, timeout):
@@ -237,15 +284,100 @@ def sampled_pull_in(drive: Drive, res, v_factor, c_factor, duty, timeout):
     return replace(res, pull_in_time=pin.seat_time.reshape(np.shape(res.pull_in_time)))
 
 
-def require_seated_in_peak(drive: Drive, label, pin: PullInBatch, key: str, hold: str, why: str) -> None:
+def require_seated_in_peak(drive: Drive, label, pin: PullInBatch, key: str, hold: str, why: str,
+                           instead: str = "a voltage-mode hold") -> None:
     """Refuse in one line (``key``) a ``hold`` that is not modelled with the armature moving
     (``why``, in words), where the pull-in run ``pin`` (the envelope's: the boost at its
     lowest until the threshold itself, the shortest push any real peak gives) has the
-    armature not yet on the seat when the peak ends; ``label(k)`` names point ``k``."""
+    armature not yet on the seat when the peak ends; ``label(k)`` names point ``k``;
+    ``instead``: the holds that do carry it, in words."""
     late = np.flatnonzero(~seated_in_peak(pin))
     if late.size:
         k = int(late[np.argmax(pin.seat_time[late])])
         raise InputError(drive.source, key, f"{hold} after the boosted peak is modelled with a moving "
                          "armature only where it seats within the peak, and at "
                          f"{label(k)} it is not yet seated when the peak ends ({why}): expected a higher threshold "
-                         "(pull_in.current_margin) or a voltage-mode hold")
+                         f"(pull_in.current_margin) or {instead}")
+
+
+class LoopControl:
+    """The closed loop's duty after a boosted peak, period by period, as the reference
+    driver computes it (the header's integer PI, docs/firmware.md): a ``control`` of
+    :func:`~coildrive.model.armature_boost.boosted_pull_in`.
+
+    The conversion that reads the threshold preloads the integrator (``preload_compare``)
+    and runs the first PI step on the threshold's code (:meth:`first`); every period's
+    conversion -- the middle of the on-time with the sense under the switch, of the period
+    in the coil path -- gives the next period's compare. ``loop``: the design's
+    :class:`~coildrive.design.result.ClosedLoopResult`; ``counts``: the timer's period
+    (counts); ``codes_per_amp``: the reading's codes per true ampere at each point (the
+    chain reading high: the lowest current the loop settles at, the weakest push)."""
+
+    def __init__(self, loop, counts: int, codes_per_amp, switch_leg: bool, full: int):
+        self.loop, self.counts, self.switch_leg, self.full = loop, counts, switch_leg, full
+        self.cpa = np.asarray(codes_per_amp, float)
+        self.integ = np.full(self.cpa.shape, loop.preload_compare << loop.gain_shift, dtype=np.int64)
+
+    def sample(self, duty) -> np.ndarray:
+        """The conversion's moment, a fraction of the period, at each point's ``duty``."""
+        return 0.5 * np.asarray(duty, float) if self.switch_leg else np.full(np.shape(duty), 0.5)
+
+    def _pi(self, k, code) -> np.ndarray:
+        r = self.loop
+        lo, hi = r.integrator_min, r.integrator_max
+        e = r.setpoint_code - np.asarray(code, np.int64)
+        integ = self.integ[k]
+        p = r.kp_q * e
+        s = p + integ
+        wound = ((s >= hi) & (e > 0)) | ((s <= lo) & (e < 0))
+        integ = np.where(wound, integ, np.clip(integ + r.ki_q * e, lo, hi))
+        self.integ[k] = integ
+        s = np.clip(p + integ, lo, hi)
+        return (s >> r.gain_shift) / self.counts
+
+    def first(self, code: int) -> np.ndarray:
+        """The first hold period's duty at every point, from the threshold's ``code``."""
+        k = np.arange(self.cpa.size)
+        return self._pi(k, np.full(k.size, code))
+
+    def step(self, k, i) -> np.ndarray:
+        """The next period's duty at points ``k`` from the current ``i`` A converted."""
+        code = np.clip(np.floor(np.asarray(i, float) * self.cpa[k]), 0, self.full)
+        return self._pi(k, code)
+
+
+def loop_pull_in(drive: Drive, res, loop, counts: int, reading, switch_leg: bool):
+    """``res`` (evaluated points with their boosted runs, the closed loop's settled duty in
+    the hold) with the pull-in run redone under the loop's own duties where the armature is
+    not yet seated when the peak ends: from the threshold the integer PI of
+    :class:`LoopControl` (preloaded, cutting the duty while the reading is above the
+    set-point) carries it, period by period, as the firmware does (``reading``: the sense
+    chain's reading over the true current per point, its high end). The seat times, the
+    pull-in time and the runs' ``slow`` follow; points seated within the peak keep theirs."""
+    from .boost import threshold
+
+    arm = res.armature
+    runs_ = arm.boost
+    pin = runs_.slow
+    late = np.flatnonzero(~seated_in_peak(pin) & np.isfinite(pin.trip_time))
+    if late.size == 0:
+        return res
+    b = drive.board
+    cpa = b.sense.resistance * b.sense.gain / b.adc.reference * 2**b.adc.bits
+    p = arm.params.take(late)
+    control = LoopControl(loop, counts, cpa * np.ravel(np.broadcast_to(reading, (len(arm.params),)))[late],
+                          switch_leg, 2**b.adc.bits - 1)
+    i_th, code, _ = threshold(drive)
+    period = np.ravel(np.broadcast_to(np.asarray(res.hold.period, float), (len(arm.params),)))[late]
+    got = boosted_pull_in(_boost(drive, p, False), p, i_th, control.first(code), period, runs_.window,
+                          rtol=1e-7, control=control)
+    fields = ("status", "seat_time", "seat_current", "impact_time", "impact_speed", "dip_current",
+              "dip_time", "stall_gap", "bound", "bounces", "steps")
+    merged = {}
+    for name in fields:
+        value = np.array(getattr(pin, name), copy=True)
+        value[late] = getattr(got, name)
+        merged[name] = value
+    slow = replace(pin, **merged)
+    arm = replace(arm, boost=replace(runs_, slow=slow), pull_in=slow)
+    return replace(res, armature=arm, pull_in_time=slow.seat_time.reshape(np.shape(res.pull_in_time)))

@@ -170,20 +170,31 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
          pts) = got
         at = dict(coil_temp=env.coil_temp, factors=env.factors())
         first = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor, run_low, f, 0.0, **at)
+        # each hold starts from the most duty the loop settles at anywhere: the current comes
+        # down onto the set-point from above after the peak, never from below
+        preload = min(max_compare, max(min_compare, math.ceil(float(np.max(run_high)) * period - 1e-9)))
+        saturated = np.isnan(d_weak) | np.isnan(d_strong) | (d_weak <= floor + 1e-12) & (floor > 0)
+        loop_result = _loop(drive, env, lp, first, run_low, f, period, setpoint, lsb, min_compare,
+                            max_compare, saturated, switch_leg, preload)
+        if drive.supply.boosted and first.armature is not None and drive.coil.eddy_resistance:
+            from .boost_armature import require_seated_in_peak
+            require_seated_in_peak(drive, env.label, first.armature.pull_in, "hold.regulation",
+                                   "a closed-loop hold with an eddy-current term", "the loop's samples "
+                                   "of the terminal current are not modelled in flight")
+        elif drive.supply.boosted and first.armature is not None:
+            # an armature still in flight when the boosted peak ends: the loop's own duties
+            # (its integer PI from the preload, the chain reading high) carry it on
+            from .boost_armature import loop_pull_in
+            first = loop_pull_in(drive, first, loop_result, period,
+                                 reading_range(env.sense_factor, gt)[1], switch_leg)
         pk = plan_peak(drive, env, first)
         longer = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate
         if not cycling(drive) or longer <= heat_peak:
             break
         heat_peak = longer
-    saturated = np.isnan(d_weak) | np.isnan(d_strong) | (d_weak <= floor + 1e-12) & (floor > 0)
     short, long_ = pk.short_time, pk.long_time
     res_low = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor, run_low, f,
                        short, reuse=first, **at)
-    if drive.supply.boosted and res_low.armature is not None:
-        from .boost_armature import require_seated_in_peak
-        require_seated_in_peak(drive, env.label, res_low.armature.pull_in, "hold.regulation",
-                               "a closed-loop hold", "the loop cutting the duty while the reading is "
-                               "above the set-point would carry the armature in flight")
     res = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor, run_high, f,
                    long_, **at)
     res = boosted_points(drive, res)   # a boosted peak's highest end current and turn-off
@@ -207,11 +218,6 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     nominal = corners_of(nom_grid, nom, _losses(drive, nom, f), duty=nom_duty, drive=drive)[0]
     nominal = dataclasses.replace(nominal, label="nominal: " + nominal.label)
 
-    # each hold starts from the most duty the loop settles at anywhere: the current comes
-    # down onto the set-point from above after the peak, never from below
-    preload = min(max_compare, max(min_compare, math.ceil(float(np.max(run_high)) * period - 1e-9)))
-    loop_result = _loop(drive, env, lp, res_low, run_low, f, period, setpoint, lsb, min_compare,
-                        max_compare, saturated, switch_leg, preload)
     k_hot = int(np.argmax(np.where(np.isfinite(hot), hot, np.inf)))
     k_heat = int(where[k_hot])
     spread = hold_spread(env, res_low)

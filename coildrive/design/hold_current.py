@@ -436,7 +436,9 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
             from .boost_armature import require_seated_in_peak
             require_seated_in_peak(drive, grid.label, first.armature.pull_in, "hold.mode",
                                    "a current-mode hold", "its thresholds would switch the coil with "
-                                   "the armature moving")
+                                   "the armature moving",
+                                   "a voltage-mode hold" + ("" if drive.coil.eddy_resistance else
+                                                            " (or the closed loop, which carries it)"))
         pk = plan_peak(drive, grid, first)
         longer = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate
         if not cycling(drive) or longer <= peak_time:

@@ -48,10 +48,14 @@ def peak_inductance(drive: Drive, lp):
     """Inductance (H) of the peak's heat: the loop's, or with an ``[armature]`` the open
     one (same tolerance factor). While the gap closes ``L(x) di/dt <= V - R i``, so the rise
     through the open inductance bounds the moving armature's current -- and its heat --
-    from above."""
+    from above. With an eddy term its magnetising branch opens so (an
+    :class:`~coildrive.model.eddy.EddyCoil` of the open branch, the same eddy resistance)."""
     if drive.armature is None:
         return lp.inductance
-    return lp.inductance * drive.armature.inductance_open / drive.armature.inductance_closed
+    ratio = drive.armature.inductance_open / drive.armature.inductance_closed
+    if isinstance(lp.inductance, EddyCoil):
+        return EddyCoil(lp.inductance.magnetising * ratio, lp.inductance.resistance)
+    return lp.inductance * ratio
 
 
 def pwm_state(duty, frequency):

@@ -20,7 +20,9 @@ until it rests on the seat, falls back to the open stop where the hold's highest
 cannot start it again, or a window ends (the design's: ``pull_in.margin`` x the longest
 boosted peak over the envelope -- flying a weak hold's slow approach edge by edge for as long as
 the mechanics' own time bound would cost minutes over the envelope, and an armature that
-is not seated by then fails the design anyway).
+is not seated by then fails the design anyway). A hold whose duty the firmware sets period
+by period (a closed loop: ``control``) flies the same edges with each period's duty from the
+current at the period's conversion (the flight's state there).
 
 On a drooping main supply (``p_hold.droops``: ``source_resistance`` and ``capacitance``
 behind the hold's switch) the main bus feeds the hold from the hand-over on, its bulk
@@ -92,7 +94,8 @@ def hold_schedule(t0: float, t_end: float, duty: float, period: float) -> list:
 
 
 def boosted_pull_in(p_boost: ArmatureParams, p_hold: ArmatureParams, trip, duty, period, until,
-                    i_top=None, rtol: float = 1e-7, bus0=None, orbit: bool = True) -> PullInBatch:
+                    i_top=None, rtol: float = 1e-7, bus0=None, orbit: bool = True,
+                    control=None) -> PullInBatch:
     """Switch-on from rest: the boost (``p_boost``, :func:`boost_params`) until the current
     reaches ``trip`` A, then the hold (``p_hold``: the main supply's loop, ``duty`` and
     ``period`` s per point) until the armature seats, or ``until`` s after switch-on (per
@@ -117,6 +120,13 @@ def boosted_pull_in(p_boost: ArmatureParams, p_hold: ArmatureParams, trip, duty,
     threshold never comes the main bus is not drawn: ``bus0`` itself, at 0 s.
     ``orbit`` False: the lowest bus only up to the seat (``bus_settled`` ``None``;
     :func:`with_orbit` completes it), for runs that need the seat alone.
+
+    ``control``: a hold whose duty the firmware sets period by period from a conversion
+    (a closed loop), else ``None`` (``duty`` throughout). It has ``sample(duty)`` (the
+    conversion's moment in each period, a fraction of it, per point) and ``step(k, i)``
+    (the next period's duty at points ``k`` from the current ``i`` A converted in the period
+    that ends); ``duty`` is then the first period's. Where the armature falls back to the
+    open stop under it, it is taken as not seated (STALLED at the full stroke).
     """
     n = len(p_hold)
     pin = pull_in(p_boost, trip=trip, rtol=rtol)
@@ -136,7 +146,8 @@ def boosted_pull_in(p_boost: ArmatureParams, p_hold: ArmatureParams, trip, duty,
         if droop:
             y0 = np.concatenate([y0, u0[None, k]])
         got = _hold_flights(p_hold.take(k), pin.trip_time[k], y0, per_point(duty)[k], per_point(period)[k],
-                            per_point(until)[k], top[k], rtol)
+                            per_point(until)[k], top[k], rtol,
+                            None if control is None else _Sub(control, k))
         if droop:
             seat_bus[k] = got.pop("seat_bus")
             low[:, k] = got.pop("low")
@@ -205,21 +216,42 @@ def seated_hold_bus(p: ArmatureParams, t_hand, t_seat, i_seat, u_seat, duty, per
     return np.where(lower, v_h, v_low), np.where(lower, t_next + t_h, when), settled
 
 
-def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: float) -> dict:
+class _Sub:
+    """A ``control`` of :func:`boosted_pull_in` seen at the points ``k`` of its own."""
+
+    def __init__(self, control, k):
+        self.control, self.k = control, k
+
+    def sample(self, duty):
+        return self.control.sample(duty)
+
+    def step(self, j, i):
+        return self.control.step(self.k[j], i)
+
+
+def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: float,
+                  control=None) -> dict:
     """The hold after the threshold for points whose armature is open or in flight there
     (``t0`` s, states ``y0``: lambda, x, v, q, sq, and on a drooping main bus its capacitor
     u V) until ``until`` s, all at once: the batched flight
     (:func:`~coildrive.model.armature_flight.fly_mixed`) from PWM edge to PWM edge, the
     seat's bounces as in :func:`~coildrive.model.armature_runs.pull_in`; a point resting
     on the open stop whose hold could start it again (``i_top`` above its start current)
-    goes on alone through :func:`~coildrive.model.armature_sim.simulate`. Returns the
+    goes on alone through :func:`~coildrive.model.armature_sim.simulate` (under a
+    ``control``, not seated). With a ``control`` each period's duty is its ``step`` from the
+    current at the period's conversion (the flight's state there). Returns the
     :class:`PullInBatch` fields of :func:`boosted_pull_in`; on a drooping bus also
     ``seat_bus`` (V at the seat, NaN where not seated) and ``low`` (2 x N: the lowest bus V
     and when, s, up to the seat or ``until``)."""
     n = len(p)
     t = np.asarray(t0, float).copy()
     y = np.asarray(y0, float).copy()
+    duty = np.asarray(duty, float).copy()
     t_on = duty * period
+    sampled = None
+    if control is not None:   # the conversion's moment in the period, and the state there
+        at = t + control.sample(duty) * period
+        sampled = np.full((y.shape[0], n), np.nan)   # (on a drooping bus six states)
     bound = np.maximum(np.asarray(until, float), t)
     lam_stay = p.flux_closed(p.stay_current)
     lam_start = p.flux_open(p.start_current)
@@ -245,7 +277,8 @@ def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: f
     for _ in range(MAX_EDGES):
         if not active.any():
             break
-        fl = fly_mixed(p, t, y, edge, active, on, live, stiff, rtol, **track)
+        fl = fly_mixed(p, t, y, edge, active, on, live, stiff, rtol, **track,
+                       **({} if control is None else {"query": at, "query_y": sampled}))
         res["steps"] += np.where(active, fl.steps, 0)
         t = np.where(active, fl.t, t)
         y = np.where(active, fl.y, y)
@@ -274,6 +307,9 @@ def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: f
         rests = opn & (y[0] <= lam_start)
         stays = rests & (i_top < p.start_current)
         res["stall_gap"] = np.where(stays, p.stroke, res["stall_gap"])
+        if control is not None:    # fallen back under a closed loop: taken as not seated
+            res["stall_gap"] = np.where(rests, p.stroke, res["stall_gap"])
+            stays = rests
         alone |= rests & ~stays
         active &= ~rests
         live = np.where(active & (fl.end == ZERO), False, live)
@@ -286,6 +322,13 @@ def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: f
         off = turn & on & (t_on < period)
         back = turn & ~off
         cycle = np.where(back, cycle + period, cycle)
+        if control is not None and back.any():   # the next period's duty from its conversion
+            j = np.flatnonzero(back)
+            i_s = p.take(j).current(sampled[0, j], sampled[1, j])
+            duty[j] = control.step(j, np.where(np.isfinite(i_s), i_s, p.take(j).current(y[0, j], y[1, j])))
+            t_on = duty * period
+            at = np.where(back, t0 + cycle + control.sample(duty) * period, at)
+            sampled[:, j] = np.nan
         on = np.where(off, False, np.where(back, True, on))
         live = np.where(back, True, live)
         edge = np.where(off, t0 + cycle + period, np.where(back, t0 + cycle + t_on, edge))

@@ -1,0 +1,111 @@
+"""A moving armature on a boosted peak in the firmware device (``[supply] boost`` and
+``[armature]``, ``coildrive emulate --firmware``): the armature flown stretch by stretch as
+the compiled driver switches, from the peak's start until it rests on the seat.
+
+The device (:class:`~coildrive.bench.firmware_device.FirmwareDevice`) hands each PWM
+period over in two stretches, split at the period's conversion (where the driver may turn
+the boost or the switch off): :meth:`BoostFlight.run` flies the armature's equations
+(:func:`coildrive.model.armature_sim.simulate`, the design's model) over a stretch --
+switch on from the boost capacitor while the driver keeps the boost on (its voltage a
+state with no source behind it, :func:`coildrive.model.armature_boost.boost_params`; the
+boost at its nominal voltage and capacitance, the capacitor where its recharge has it at
+the peak's start), on from the main supply after it, off through the hold's freewheel
+path (or the release's once the driver opens everything) -- and returns the current over
+it. Once the armature rests on the seat the device goes on with the seated coil's
+closed form, as it does after an unboosted pull-in; once it rests open with no current
+after the driver switched off, the flight is over too.
+
+Units: SI (s, A, V, V*s, m, m/s).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..model.armature import params_from_loop
+from ..model.armature_boost import boost_params
+from ..model.armature_sim import simulate
+
+#: Samples per closed-form piece or integrated piece of a stretch (the current between them
+#: is interpolated linearly for the ADC's samples).
+POINTS = 16
+
+
+class BoostFlight:
+    """The armature's state between stretches (see the module docstring).
+
+    Parameters
+    ----------
+    drive : the (possibly faulty) drive the device emulates (its ``[armature]`` and boost).
+    hold, release : its loops at the device's point (:func:`coildrive.model.circuit.loop`):
+        the hold's (switch on from the main supply, the hold's off path) and the release's
+        (the off path once the driver opens everything).
+    l_scale : the coil's inductance factor (the device's tolerance scale x its fault's).
+    """
+
+    def __init__(self, drive, hold, release, l_scale: float):
+        s = drive.supply
+        self.p_hold = params_from_loop(drive.armature, hold, l_scale)
+        self.p_release = params_from_loop(drive.armature, release, l_scale)
+        self._boost = (float(s.boost_capacitance), float(s.boost_resistance))
+        self.y: np.ndarray | None = None     # lambda, x, v, q, sq while in flight, else None
+        self.u = float(s.boost)              # the boost capacitor, V
+        self.state = "open"
+        self.live = False
+        self.current = 0.0                   # A at the end of the last stretch
+
+    @property
+    def active(self) -> bool:
+        """True from the peak's start until the armature rests on the seat (or open, off)."""
+        return self.y is not None
+
+    def start(self, u: float) -> None:
+        """The peak's start from rest, the boost capacitor at ``u`` V."""
+        self.y = np.array([0.0, float(self.p_hold.stroke[0]), 0.0, 0.0, 0.0])
+        self.u, self.state, self.live, self.current = float(u), "open", False, 0.0
+
+    def _fly(self, p, schedule, t0: float, boost: bool, release=None):
+        droops = boost and self._boost[0] > 0
+        start = np.append(self.y, self.u) if droops else self.y
+        tr = simulate(p, schedule, state=self.state, start=start, live=self.live, t0=t0, points=POINTS,
+                      release_params=release)
+        self.y = np.array([tr.flux[-1], tr.position[-1], tr.velocity[-1], tr.charge[-1], tr.square[-1]])
+        if droops:
+            self.u = float(tr.bus[-1])
+        self.state = tr.state
+        self.current = float(tr.current[-1])
+        self.live = self.current > 0.0
+        return tr.time, tr.current
+
+    def run(self, t0: float, t1: float, on_end: float, boost: bool, path: str):
+        """Fly from ``t0`` to ``t1`` s: the switch on until ``on_end`` s (from the boost
+        capacitor while ``boost``, else from the main supply), then off through ``path``
+        (``"hold"`` or ``"release"``). Returns ``current(x)``: A at device times in the stretch."""
+        if t1 <= t0:
+            i = self.current
+            return lambda x: np.full(np.shape(x), i)
+        times, amps = [np.array([t0])], [np.array([self.current])]
+        cut = min(max(on_end, t0), t1)
+        if boost and cut > t0:
+            c_b, r_b = self._boost
+            t, i = self._fly(boost_params(self.p_hold, self.u, c_b, r_b), [(cut, True)], t0, True)
+            times.append(t)
+            amps.append(i)
+        schedule = [] if boost else [(cut, True)] if cut > t0 else []
+        if t1 > cut:
+            schedule.append((t1, False, None, path))
+        if schedule:
+            t, i = self._fly(self.p_hold, schedule, cut if boost else t0, False, self.p_release)
+            times.append(t)
+            amps.append(i)
+        t, i = np.concatenate(times), np.concatenate(amps)
+        return lambda x: np.interp(np.asarray(x, float), t, i)
+
+    def settle(self, enabled: bool) -> bool:
+        """End the flight where it is over: the armature resting on the seat, or (the driver
+        switched off) open with no current left. True where it ended."""
+        if self.y is not None and (self.state == "seated" or (not enabled and self.state == "open"
+                                                                and not self.live)):
+            self.y = None
+            return True
+        return False
