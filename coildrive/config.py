@@ -1479,9 +1479,35 @@ def _read_boost(s: "_Section") -> tuple:
             s.fraction("boost_efficiency", 0.0, below_one=False))
 
 
+def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature: Armature | None,
+                           latch: "Latch | None") -> tuple[str, str] | None:
+    """``(key, why)`` where a latching coil's pulses from the boost are not modelled, else
+    ``None``: they are (:mod:`coildrive.design.latch_boost`) for a linear coil without an
+    eddy term, a reset winding on a second low- or high-side switch, no ``[armature]``, a
+    stiff main supply and no settle time after the reset pulse."""
+    if armature is not None:
+        return "armature", "a latching coil with a moving armature (its seat run from the boost)"
+    if supply.droops:
+        return "supply.source_resistance", ("a latching coil on a drooping main supply (its pulses from "
+                                            "the boost: a stiff main supply only)")
+    if switch.topology == "full_bridge":
+        return "hold.mode", ("a latching coil on a full bridge (its reset polarity drives leg B, which the "
+                             "boost switch does not feed: a reset winding on a low- or high-side board only)")
+    if coil.flux_current or (latch is not None and latch.reset_coil is not None
+                             and latch.reset_coil.flux_current):
+        return "coil.flux_current", "a latching coil's flux-linkage curve (its pulses from the boost: a linear coil)"
+    if coil.eddy_resistance or (latch is not None and latch.reset_coil is not None
+                                and latch.reset_coil.eddy_resistance):
+        return "coil.eddy_resistance", "a latching coil's eddy-current term (its pulses from the boost: a linear coil)"
+    if latch is not None and latch.reset_settle_time > 0:
+        return "reset.settle_time", ("a reset settle time (each pulse from the boost ends at its current "
+                                     "threshold, not at a time after it)")
+    return None
+
+
 def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, freewheel: Freewheel,
                  supply: Supply, hold: Hold, pull_in: PullIn, armature: Armature | None,
-                 duty) -> None:
+                 duty, latch: "Latch | None" = None) -> None:
     """What the boosted peak (``supply.boost``) is modelled with: a linear coil or a
     flux-linkage curve (an eddy term too, either way), a low-side
     or a high-side switch or a full bridge (the boost switch feeding leg A's high side, the
@@ -1498,6 +1524,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     finds the armature seated within the peak at every corner
     (:func:`coildrive.design.boost_armature.require_seated_in_peak`), an inelastic seat (no restitution), an on/off cycle without an eddy term
     (the peak's heat is the run's copper integral: :func:`coildrive.design.boost_armature.peak_heat`).
+    A latching coil's set and reset pulses from the boost, each ending at its own threshold
+    (:mod:`coildrive.design.latch_boost`): what :func:`_boosted_latch_refusal` allows.
     Anything else is refused in one line."""
     if not supply.boosted:
         return
@@ -1518,10 +1546,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     elif supply.droops and switch.topology == "full_bridge":
         key, why = "supply.source_resistance", ("a drooping main supply on a full bridge (its release "
                                                 "into the drooping bus after a boost is not modelled)")
-    elif hold.mode == "latch":
-        key, why = "hold.mode", ("a latching coil (set and reset pulses from the boost would each end at a "
-                                 "current threshold of their own, with the boost switch in the latch "
-                                 "driver and its device: not built yet)")
+    elif hold.mode == "latch" and _boosted_latch_refusal(coil, switch, supply, armature, latch):
+        key, why = _boosted_latch_refusal(coil, switch, supply, armature, latch)
     elif armature is not None and supply.droops:
         key, why = "supply.source_resistance", "a drooping main supply and a moving armature together"
     elif armature is not None and armature.restitution > 0:
@@ -1547,7 +1573,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "diode/zener/resistor freewheel (split decay too) or a clamp, a stiff "
                          "main supply (or a drooping one: a linear coil on one switch, no [armature]), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
-                         "with [armature]: no restitution, no mixed decay, no [duty] with an eddy term")
+                         "with [armature]: no restitution, no mixed decay, no [duty] with an eddy term; a "
+                         "latching coil: a linear coil and its reset winding, a stiff main supply, no [armature]")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,
@@ -1848,7 +1875,7 @@ def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
     _check_bridge(source, origins, switch, freewheel, supply, hold, coil)
     _check_droop(source, coil, switch, supply, armature, hold)
-    _check_boost(source, origins, coil, switch, freewheel, supply, hold, pull_in, armature, duty)
+    _check_boost(source, origins, coil, switch, freewheel, supply, hold, pull_in, armature, duty, latch)
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:
         raise InputError(origins.get("clamp_voltage", source), "freewheel.clamp_voltage",
                          f"{freewheel.clamp_voltage:g} V is not above supply.max ({supply.max:g} V): "

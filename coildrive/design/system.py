@@ -1059,7 +1059,7 @@ def _refuse(system: System, ch) -> None:
     current-mode one, or a latching coil, or a boosted peak. Anything else is refused in
     one line: a curve with a moving armature (the closing armature's current is not proved
     to stay under the open curve's rise, docs/design-method.md, "A flux-linkage curve"), a
-    boosted peak with an eddy term, and a boosted peak without ``supply.boost_efficiency``
+    boosted peak with an eddy term, a latching coil's pulses from the boost, and a boosted peak without ``supply.boost_efficiency``
     (its converter's draw)."""
     d = ch.drive
     why = None
@@ -1067,6 +1067,8 @@ def _refuse(system: System, ch) -> None:
         key, why = "armature", "a moving armature with a flux-linkage curve"
     elif d.supply.boosted and d.coil.eddy_resistance:
         key, why = "supply.boost", "a boosted peak with an eddy-current term"
+    elif d.supply.boosted and d.latch is not None:
+        key, why = "supply.boost", "a latching coil's pulses from the boost (their rail-current bound)"
     elif d.supply.boosted and not d.supply.boost_efficiency > 0:
         raise InputError(d.source, "supply.boost_efficiency", f"missing: channel {ch.name!r} of {system.source} "
                          "has a boosted peak, whose converter draws from the shared rail, expected its efficiency "
@@ -1075,8 +1077,8 @@ def _refuse(system: System, ch) -> None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
                          "in a system yet; expected a linear coil (with an [armature], an eddy term or both) "
                          "or a flux-linkage curve (no [armature]), one switch or a full bridge and a voltage-mode "
-                         "fixed, supply-table, closed-loop or current-mode hold, or a latching coil; a boosted "
-                         "peak without an eddy term")
+                         "fixed, supply-table, closed-loop or current-mode hold, or a latching coil (not from a boost); "
+                         "a boosted peak without an eddy term")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:
