@@ -303,3 +303,25 @@ def test_firmware_driver_and_emulate_firmware_refuse_in_one_line(tmp_path):
     assert not (tmp_path / "drv").exists()
     res = CliRunner().invoke(app, ["emulate", str(VALVE), "--firmware", str(tmp_path), "--duration", "0.1"])
     assert res.exit_code == 2 and "--firmware" in res.stderr and len(res.stderr.strip().splitlines()) == 1
+
+
+def test_a_boost_too_small_fails_and_a_high_side_board_reports_its_node(tmp_path):
+    # 5 uF cannot drive either winding to its threshold: both *_pulse checks fail and say
+    # how much it drives, no header is written, simulate refuses in one line; the plot
+    # draws each pulse to its first maximum
+    weak = _write(tmp_path, VALVE, 'boost_capacitance = "220 uF"', 'boost_capacitance = "5 uF"')
+    header, png = tmp_path / "w.h", tmp_path / "w.png"
+    res = CliRunner().invoke(app, ["design", str(weak), "--json", "--header", str(header), "--plot", str(png)])
+    assert res.exit_code == 1, res.stderr
+    doc = json.loads(res.stdout)
+    assert sorted(c["name"] for c in doc["checks"] if not c["ok"]) == ["reset_pulse", "set_pulse"]
+    assert all(p["ticks"] is None and "drives at most" in p["not_reached"] for p in doc["latch"]["pulses"])
+    assert not header.exists() and png.exists()
+    res = CliRunner().invoke(app, ["simulate", str(weak), "--supply", "9", "--coil-temp", "20", "--csv",
+                                   str(tmp_path / "w.csv")])
+    assert res.exit_code == 2 and len(res.stderr.strip().splitlines()) == 1 and not (tmp_path / "w.csv").exists()
+    # the high side: the node at a pulse's end is -V_d (the freewheel diode from ground, model.high_side)
+    hs = load_drive(_write(tmp_path, VALVE, 'board = "lab-m32-zener"', 'board = "sourcing-hs-zener"'))
+    d = design_latch(hs)
+    assert d.ok and all(p.lowest_node_v == pytest.approx(-hs.freewheel.diode_drop, abs=1e-6) for p in d.latch.pulses)
+    assert any("node swings" in c for c in d.cautions)

@@ -106,9 +106,15 @@ def firmware_time(wd: Drive, b: BoostResult, supply: float, coil_temp: float, r_
                   l_factor: float = 1.0) -> float:
     """The pulse the firmware runs at one point (s): from the boost at its nominal voltage
     and capacitance until a nominal sense chain reads the threshold code, or the time-out
-    if sooner (as :func:`coildrive.design.boost.firmware_peak` for the peak)."""
+    if sooner (as :func:`coildrive.design.boost.firmware_peak` for the peak). A design
+    whose threshold is never reached has no time-out: then until the current's first
+    maximum (an ideal boost's: five time constants), to show how far short it falls."""
     s = wd.supply
     lp = loop(wd, supply, coil_temp, r_factor, l_factor)
     bb = boost.at_boost(wd, s.boost, s.boost_capacitance, lp.r_on, lp.inductance)
-    t = float(model.of(bb).threshold_time(boost.nominal_trip(wd, b.threshold_code), bb, sensed=True))
-    return min(t, b.timeout_s or 0.0)
+    m = model.of(bb)
+    t = float(m.threshold_time(boost.nominal_trip(wd, b.threshold_code), bb, sensed=True))
+    if b.timeout_s is None:
+        top = float(m.peak_time(bb))
+        return min(t, top if np.isfinite(top) else 5.0 * float(bb.l / bb.r))
+    return min(t, b.timeout_s)

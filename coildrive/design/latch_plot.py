@@ -29,7 +29,8 @@ def plot_latch(d: LatchDesign, waveforms: dict) -> bytes:
                    label=f"x {p.current_margin:g}: its threshold" if boosted else
                    f"x {p.current_margin:g} by the shortest pulse")
         ax.axvline(p.time_s * 1e3, color="k", lw=0.8)
-        ax.set_title(f"{name} pulse to {p.force_current_a:.3g} A from the boost, time-out {p.time_s * 1e3:.4g} ms"
+        ax.set_title((f"{name} pulse to {p.force_current_a:.3g} A from the boost, "
+                      + (f"time-out {p.time_s * 1e3:.4g} ms" if p.ticks else "never reached: to its first maximum"))
                      if boosted else f"{name} pulse {p.time_s * 1e3:.4g} ms ({p.ticks} ticks), {p.switches}",
                      fontsize=9)
         ax.set_xlabel("time from the pulse's start (ms)")
