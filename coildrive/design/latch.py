@@ -23,6 +23,11 @@ zero, the coil's temperature (:mod:`coildrive.model.latch`: the larger pulse's c
 heat every interval, from the hottest ambient, up to ``thermal.max_coil_temp``), and the
 capacitor's recharge to the bus the pulses were designed from.
 
+From the boost (``[supply] boost``; a linear coil's two windings on a stiff main supply):
+each pulse ends at its own current threshold with a time-out, its energy is drawn from
+the boost, and the boost's recharge enters the interval
+(:mod:`coildrive.design.latch_boost`).
+
 A flux-linkage curve (the set winding's, or the bridge's one coil's) takes every segment
 on the curve (:mod:`coildrive.model.flux`; on a drooping bus :mod:`coildrive.model.flux_bus`),
 the on-time's integrals by :func:`coildrive.model.flux.rise_integrals` (exact over a flat
@@ -185,7 +190,8 @@ class LatchResult:
     ``decay_interval_s`` (the pulse and its decay to zero), ``thermal_interval_s`` (the
     coil's temperature; 0 without self-heating) and ``recharge_interval_s`` (the
     capacitor; 0 on a stiff bus) and ``armature_interval_s`` (a reset pulse's start to the
-    armature at rest on the open stop; 0 without ``[armature]``). ``pulse_heat_j``: the copper heat per pulse the
+    armature at rest on the open stop; 0 without ``[armature]``) and ``boost_interval_s``
+    (the longest pulse from the boost + its recharge; 0 without a boost). ``pulse_heat_j``: the copper heat per pulse the
     thermal interval is for (the larger pulse's), ``coil_rise_per_pulse_k`` = that / the
     heat capacity, ``hottest_coil_c`` the coil just after a pulse when pulsing at the
     interval (from ``ambient.max``), ``coil_limit_c`` the limit."""

@@ -98,7 +98,8 @@ def checks(name: str, b: BoostResult, wd: Drive) -> list[Check]:
     (``{name}_boost_droop``), worded as the boosted peak's
     (:func:`coildrive.design.boost.boost_checks`)."""
     rename = {"boost_threshold": f"{name}_pulse", "boost_droop": f"{name}_boost_droop"}
-    return [Check(rename[c.name], c.ok, f"the {name} pulse from the boost: {c.detail}")
+    return [Check(rename[c.name], c.ok, f"the {name} pulse from the boost: "
+                  + c.detail.replace("the end of the peak", "the end of the pulse"))
             for c in boost.boost_checks(wd, b) if c.name in rename]
 
 
