@@ -286,7 +286,6 @@ BOOST = ("[supply]\n", "[supply]\nboost = \"40 V\"\nboost_capacitance = \"220 uF
               "[freewheel]")], [], "armature"),
     (VALVE, [("inductance_tolerance = 0.15\n", "inductance_tolerance = 0.15\neddy_resistance = \"200 ohm\"\n")],
      [], "coil.eddy_resistance"),
-    (VALVE, [], ["--samples", "10"], "--samples"),
 ])
 def test_what_a_boosted_latch_refuses_is_one_line(tmp_path, path, edits, args, key):
     src = path
@@ -343,3 +342,27 @@ def test_a_system_channel_latching_from_the_boost_is_refused_in_one_line(tmp_pat
     res = CliRunner().invoke(app, ["design", str(path)])
     assert res.exit_code == 2 and "supply.boost" in res.stderr and "latching coil's pulses from the boost" in res.stderr, res.output
     assert len(res.stderr.strip().splitlines()) == 1 and "Traceback" not in res.output
+
+
+def test_monte_carlo_never_outside_the_corner_envelope(tmp_path, valve):
+    """The samples (the boost's charge and capacitance drawn within their tolerances too)
+    lie inside the corners' box, so the corners bound them: the time to each current, the
+    energy from the boost and the time to zero never above the design's, the end current
+    never below the threshold; a boost too small is counted."""
+    from coildrive.design.latch_montecarlo import latch_monte_carlo
+
+    drive, d = valve
+    mc = latch_monte_carlo(d, 2000, seed=3)
+    assert set(mc["failures"].values()) == {0}, mc["failures"]
+    for p in d.latch.pulses:
+        f = mc["pulses"][p.name]
+        assert f["time_to_current_s"]["max"] <= p.worst_time_s * (1 + 1e-9)
+        assert f["supply_j"]["max"] <= p.supply_j * (1 + 1e-9)
+        assert f["decay_time_s"]["max"] <= p.decay_time_s * (1 + 1e-9)
+        assert f["end_current_a"]["min"] >= p.boost.threshold_a * (1 - 1e-9)
+    weak = design_latch(load_drive(_write(tmp_path, VALVE, 'boost_capacitance = "220 uF"', 'boost_capacitance = "5 uF"')))
+    fails = latch_monte_carlo(weak, 100)["failures"]
+    assert fails["set_not_reached"] == fails["set_timed_out"] == 100
+    res = CliRunner().invoke(app, ["design", str(VALVE), "--samples", "300"])
+    assert res.exit_code == 0 and "Monte Carlo: 300 samples" in res.stdout and "set timed out: 0" in res.stdout, res.output
+

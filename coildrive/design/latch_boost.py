@@ -119,3 +119,28 @@ def firmware_time(wd: Drive, b: BoostResult, supply: float, coil_temp: float, r_
         top = float(m.peak_time(bb))
         return min(t, top if np.isfinite(top) else 5.0 * float(bb.l / bb.r))
     return min(t, b.timeout_s)
+
+
+def sample_figures(wd: Drive, lp, rel, sense_factor, b: BoostResult, current: float, v_factor, c_factor) -> tuple:
+    """A Monte Carlo's figures of one pulse from the boost at the points of ``lp`` (the
+    winding ``wd``'s loop; :mod:`coildrive.design.latch_montecarlo`): the boost's charge x
+    ``v_factor`` and capacitance x ``c_factor``, the sense resistor x ``sense_factor``, the
+    amplifier nominal. ``(time to current s, end current A, energy from the boost J, time
+    to zero s, timed out)``: the shortest pulse ends where the sample's chain reads the
+    threshold code (its end current that code's true current; the current at the time-out
+    where that comes first), the longest one tick later (its energy and decay)."""
+    s, board = wd.supply, wd.board
+    bb = boost.at_boost(wd, s.boost * np.asarray(v_factor, float), s.boost_capacitance * np.asarray(c_factor, float),
+                        lp.r_on, lp.inductance)
+    m = model.of(bb)
+    lsb = board.adc.reference / 2**board.adc.bits
+    trip = b.threshold_code * lsb / (board.sense.resistance * np.asarray(sense_factor, float) * board.sense.gain)
+    t_trip = m.threshold_time(trip, bb, sensed=True)
+    timeout = b.timeout_s or 0.0
+    out = t_trip > timeout
+    end = np.where(out, m.state(np.minimum(t_trip, timeout), bb)[0], trip)
+    t_long = np.minimum(t_trip + late(wd), timeout)
+    i_top = m.state(t_long, bb)[0]
+    return (m.threshold_time(current, bb), end, m.energy_drawn(t_long, bb),
+            decay_time(0.0, i_top, rel.r_off, rel.v_off, lp.inductance), out)
+
