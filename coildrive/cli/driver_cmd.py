@@ -50,10 +50,6 @@ def firmware_driver(
 
     check_prefix(prefix)
     loaded = load_drive(drive, board)
-    if loaded.latch is not None and loaded.supply.boosted:
-        raise InputError(str(drive), "supply.boost", "the reference latch driver does not switch a boost yet: "
-                         "a latching coil's pulses from the boost are designed (design --header gives their "
-                         "threshold codes and time-outs), expected boost left out for firmware-driver")
     if loaded.latch is not None:      # a latching coil: its set and reset pulses
         from ..codegen.latch_driver import latch_budget_notes, render_latch_driver
         from ..design.latch import design_latch

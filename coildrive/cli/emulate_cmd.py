@@ -158,9 +158,6 @@ def _latch_device(path: Path, drv, options, firmware: Optional[Path], fault: Opt
 
     if fault is not None:
         raise InputError("--fault", "", "a latching coil's virtual device has no fault to put in: leave it out")
-    if firmware is not None and drv.supply.boosted:
-        raise InputError("--firmware", "", "the reference latch driver does not switch a boost yet: a latching "
-                         "coil's pulses from the boost run in the model's device only, expected --firmware left out")
     d = design_latch(drv)
     try:
         if firmware is not None:   # the generated latch driver times and switches the pulses

@@ -31,6 +31,8 @@ path's own resistance, ``boost_j``). The boost's recharge of the larger pulse's 
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from ..config import Drive
@@ -106,7 +108,8 @@ def checks(name: str, b: BoostResult, wd: Drive) -> list[Check]:
 def firmware_time(wd: Drive, b: BoostResult, supply: float, coil_temp: float, r_factor: float = 1.0,
                   l_factor: float = 1.0) -> float:
     """The pulse the firmware runs at one point (s): from the boost at its nominal voltage
-    and capacitance until a nominal sense chain reads the threshold code, or the time-out
+    and capacitance until a nominal sense chain reads the threshold code at a tick (the
+    driver compares once a tick, from the tick after the pulse's start), or the time-out
     if sooner (as :func:`coildrive.design.boost.firmware_peak` for the peak). A design
     whose threshold is never reached has no time-out: then until the current's first
     maximum (an ideal boost's: five time constants), to show how far short it falls."""
@@ -115,6 +118,9 @@ def firmware_time(wd: Drive, b: BoostResult, supply: float, coil_temp: float, r_
     bb = boost.at_boost(wd, s.boost, s.boost_capacitance, lp.r_on, lp.inductance)
     m = model.of(bb)
     t = float(m.threshold_time(boost.nominal_trip(wd, b.threshold_code), bb, sensed=True))
+    rate = wd.board.tick.rate
+    # the driver compares at each tick after the pulse's first: at the first at or after the crossing
+    t = max(math.ceil(t * rate - 1e-9), 1) / rate if math.isfinite(t) else t
     if b.timeout_s is None:
         top = float(m.peak_time(bb))
         return min(t, top if np.isfinite(top) else 5.0 * float(bb.l / bb.r))
