@@ -214,6 +214,7 @@ def test_threshold_codes_and_the_interval_worked_by_hand(valve):
     # + the larger pulse's recharge; it governs the example's interval
     for p in by.values():
         assert p.boost.recharge_time_s == pytest.approx(p.boost.energy_j / 1.0, rel=1e-12)
+        assert p.supply_j == pytest.approx(p.boost.energy_j, rel=1e-12)   # the same energy, split
     r = d.latch
     assert r.governed_by == "the boost's recharge"
     assert r.interval_s == pytest.approx(max(p.boost.min_interval_s for p in by.values()), rel=1e-12)
