@@ -1483,9 +1483,35 @@ def _read_boost(s: "_Section") -> tuple:
             s.fraction("boost_efficiency", 0.0, below_one=False))
 
 
+def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature: Armature | None,
+                           latch: "Latch | None") -> tuple[str, str] | None:
+    """``(key, why)`` where a latching coil's pulses from the boost are not modelled, else
+    ``None``: they are (:mod:`coildrive.design.latch_boost`) for a linear coil without an
+    eddy term, a reset winding on a second low- or high-side switch, no ``[armature]``, a
+    stiff main supply and no settle time after the reset pulse."""
+    if armature is not None:
+        return "armature", "a latching coil with a moving armature (its seat run from the boost)"
+    if supply.droops:
+        return "supply.source_resistance", ("a latching coil on a drooping main supply (its pulses from "
+                                            "the boost: a stiff main supply only)")
+    if switch.topology == "full_bridge":
+        return "hold.mode", ("a latching coil on a full bridge (its reset polarity drives leg B, which the "
+                             "boost switch does not feed: a reset winding on a low- or high-side board only)")
+    if coil.flux_current or (latch is not None and latch.reset_coil is not None
+                             and latch.reset_coil.flux_current):
+        return "coil.flux_current", "a latching coil's flux-linkage curve (its pulses from the boost: a linear coil)"
+    if coil.eddy_resistance or (latch is not None and latch.reset_coil is not None
+                                and latch.reset_coil.eddy_resistance):
+        return "coil.eddy_resistance", "a latching coil's eddy-current term (its pulses from the boost: a linear coil)"
+    if latch is not None and latch.reset_settle_time > 0:
+        return "reset.settle_time", ("a reset settle time (each pulse from the boost ends at its current "
+                                     "threshold, not at a time after it)")
+    return None
+
+
 def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, freewheel: Freewheel,
                  supply: Supply, hold: Hold, pull_in: PullIn, armature: Armature | None,
-                 duty) -> None:
+                 duty, latch: "Latch | None" = None) -> None:
     """What the boosted peak (``supply.boost``) is modelled with: a linear coil or a
     flux-linkage curve (an eddy term too, either way), a low-side
     or a high-side switch or a full bridge (the boost switch feeding leg A's high side, the
@@ -1509,6 +1535,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     eddy term (the conversion after the threshold flown: :func:`coildrive.model.armature_boost.window_flight`),
     an on/off cycle (the peak's heat is the run's copper integral, with an eddy term plus its core loss
     bounded by the first law: :func:`coildrive.design.boost_armature.peak_heat`).
+    A latching coil's set and reset pulses from the boost, each ending at its own threshold
+    (:mod:`coildrive.design.latch_boost`): what :func:`_boosted_latch_refusal` allows.
     Anything else is refused in one line."""
     if not supply.boosted:
         return
@@ -1524,10 +1552,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = "supply.source_resistance", ("a drooping main supply on a full bridge with a flux-linkage "
                                                 "curve or an eddy-current term (the release into the drooping "
                                                 "bus with the converter drawing is a linear coil's)")
-    elif hold.mode == "latch":
-        key, why = "hold.mode", ("a latching coil (set and reset pulses from the boost would each end at a "
-                                 "current threshold of their own, with the boost switch in the latch "
-                                 "driver and its device: not built yet)")
+    elif hold.mode == "latch" and _boosted_latch_refusal(coil, switch, supply, armature, latch):
+        key, why = _boosted_latch_refusal(coil, switch, supply, armature, latch)
     elif armature is not None and supply.droops and (coil.eddy_resistance or switch.topology == "full_bridge"):
         key, why = "supply.source_resistance", ("a drooping main supply and a moving armature with an eddy-current "
                                                 "term or on a full bridge (the hold's flight on the bus is a plain "
@@ -1558,7 +1584,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "main supply (or a drooping one; on a full bridge a linear coil; "
                          "with [armature] a linear coil on one switch, no clamp), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
-                         "with [armature]: no mixed decay, no restitution or [duty] with an eddy term")
+                         "with [armature]: no mixed decay, no restitution or [duty] with an eddy term; a "
+                         "latching coil: a linear coil and its reset winding, a stiff main supply, no [armature]")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,
@@ -1862,7 +1889,7 @@ def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
     _check_bridge(source, origins, switch, freewheel, supply, hold, coil)
     _check_droop(source, coil, switch, supply, armature, hold)
-    _check_boost(source, origins, coil, switch, freewheel, supply, hold, pull_in, armature, duty)
+    _check_boost(source, origins, coil, switch, freewheel, supply, hold, pull_in, armature, duty, latch)
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:
         raise InputError(origins.get("clamp_voltage", source), "freewheel.clamp_voltage",
                          f"{freewheel.clamp_voltage:g} V is not above supply.max ({supply.max:g} V): "

@@ -96,12 +96,13 @@ def write_sources(folder: Path, d, script: list[tuple[str, int]]) -> list[str]:
 
 
 LATCH_PROGRAM = ROOT / "tests" / "data" / "latch_target.c"
-LATCH_OPS = {"set": 1, "reset": 2, "stop": 3, "run": 4, "supply": 5}
+LATCH_OPS = {"set": 1, "reset": 2, "stop": 3, "run": 4, "supply": 5, "current": 6}
 
 
 def write_latch_sources(folder: Path, d, script: list[tuple[str, int]]) -> list[str]:
     """The latching coil's driver (a LatchDesign ``d``) and tests/data/latch_target.c's
-    scenario: set, reset, stop, run <ticks>, supply <code> (a compensated driver's reading)."""
+    scenario: set, reset, stop, run <ticks>, supply <code> (a compensated driver's reading),
+    current <code> (a boosted driver's current-sense reading)."""
     from coildrive.codegen.latch_driver import render_latch_driver
     for name, text in render_latch_driver(d, "coil").items():
         (folder / name).write_text(text)

@@ -130,17 +130,25 @@ def predict_pulse(design, name: str, supply: float, coil_temp: float, zero_curre
     from ..model.eddy import EddyCoil
     from ..model.flux import incremental_at
 
-    length = firmware_pulse(design, name, supply)   # a compensated pulse: the entry read there
+    # a compensated pulse: the entry read there; from the boost: to its threshold there
+    length = firmware_pulse(design, name, supply, coil_temp)
     wd = winding_drive(design.drive, name == "reset")
     lp = loop(wd, np.array([supply]), np.array([coil_temp]), 1.0, 1.0)
     rel = loop(wd, np.array([supply]), np.array([coil_temp]), 1.0, 1.0, path="release")
-    if wd.armature is None:
+    v_on = float(lp.v_on[0])
+    if wd.supply.boosted:   # from the boost capacitor (model.boost): its voltage drives the end slope
+        from ..model import boost as boost_model
+        from ..model.latch_waveform import boost_of
+        b = boost_of(wd, float(lp.r_on[0]), float(lp.inductance[0]))
+        i_end, v_c = (float(x) for x in boost_model.state(length, b))
+        v_on = v_c - wd.supply.boost_resistance * i_end   # the top of the coil
+    elif wd.armature is None:
         i_end = float(rise_current_at(wd, lp, length)[0])
     else:
         i_end = _seated_end(wd, lp, length, supply, coil_temp)
     # a flux-linkage curve's slopes take its incremental inductance where they are read
     ind = lp.inductance
-    v_on, r_on = float(lp.v_on[0]), float(lp.r_on[0])
+    r_on = float(lp.r_on[0])
     r_off, v_off = float(np.ravel(rel.r_off)[0]), float(np.ravel(rel.v_off)[0])
     if isinstance(ind, EddyCoil):
         # the sense reads the terminal current (model/eddy.py): k_on (i_m + V/R_e) on, k_off

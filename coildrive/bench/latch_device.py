@@ -10,7 +10,8 @@ PAUSE over the idle samples between the pulses.
 
 Each pulse (:func:`coildrive.model.latch_waveform.pulse`) switches on from zero for the
 design's pulse length (whole scheduler ticks; with ``pull_in.compensate`` the table entry
-its supply reads), from a full capacitor on a drooping bus,
+its supply reads; from the boost until its nominal threshold at the device's point), from
+a full capacitor on a drooping bus or from the boost,
 and decays to zero through the release path. Events: ON at its start (``value`` 0 for
 the set pulse, 1 for the reset pulse: ``docs/protocol.md``), OFF at its end; SUPPLY and
 TEMPERATURE as for any actuation.
@@ -100,8 +101,12 @@ class LatchDevice(VirtualDevice):
 
     def pulse_time(self, kind: str) -> float:
         """The pulse's length, s (whole scheduler ticks): a supply-compensated pulse's is the
-        table entry for the device's supply (:func:`coildrive.design.latch.firmware_pulse`)."""
-        return firmware_pulse(self.design, kind, self.supply)
+        table entry for the device's supply, a pulse from the boost's the time its current
+        reaches the threshold code at the device's coil
+        (:func:`coildrive.design.latch.firmware_pulse`)."""
+        o = self.options
+        return firmware_pulse(self.design, kind, self.supply, self.coil_temp, o.resistance_scale,
+                              o.inductance_scale)
 
     # ------------------------------------------------------------------ physics
     def _make_waveform(self, key: tuple) -> PulseRun:

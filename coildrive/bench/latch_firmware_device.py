@@ -10,7 +10,10 @@ handler runs at the board's tick rate; the main loop asks it for a set or a rese
 starts at the tick where the driver switches its polarity's switches on (after the
 shortest interval the driver enforces) and ends where the driver opens them; its ON and
 OFF events carry the driver's values. Switches the design has no path for (a mask that is
-neither pulse's) are a ``RuntimeError``.
+neither pulse's) are a ``RuntimeError``. Pulses from the boost: the driver ends each where
+the current-sense reading the device gives it every tick reaches the pulse's threshold
+code (or at its time-out, whose FAULT event ``faults`` keeps; the latch device streams ON
+and OFF only).
 
 The samples and events go out through the device's own encoder (the peak-and-hold
 driver's loop, :mod:`coildrive.bench.firmware_device`, uses the C encoder; the frames are
@@ -23,6 +26,8 @@ from __future__ import annotations
 
 import ctypes
 from pathlib import Path
+
+import numpy as np
 
 from ..design.figures import adc_code
 from .device import DeviceOptions, _Item
@@ -42,8 +47,9 @@ def load_latch_library(path: Path) -> ctypes.CDLL:
                             ("fil_event_kind_at", u8, [u8]), ("fil_event_value_at", ctypes.c_int32, [u8])):
         fn = getattr(lib, name)
         fn.restype, fn.argtypes = res, args
-    if hasattr(lib, "fil_supply"):   # a supply-compensated driver's reading
-        lib.fil_supply.restype, lib.fil_supply.argtypes = None, [ctypes.c_uint32]
+    for name in ("fil_supply", "fil_current"):   # a compensated driver's supply, a boosted one's current
+        if hasattr(lib, name):
+            getattr(lib, name).restype, getattr(lib, name).argtypes = None, [ctypes.c_uint32]
     return lib
 
 
@@ -69,6 +75,10 @@ class LatchFirmwareDevice(LatchDevice):
             b = design.drive.board
             self.lib.fil_supply(adc_code(self.supply / b.supply_sense.divider, b.adc.reference, b.adc.bits))
         self._kind_of_mask = {m: k for k, m in masks.items()}
+        #: pulses from the boost: the driver ends each at its threshold code, so it reads the
+        #: current every tick (a nominal sense chain, no noise); a time-out's FAULT values here
+        self._boosted = design.drive.supply.boosted
+        self.faults: list[tuple[float, int]] = []
         self._tick = 0                   # the next tick: at (n + 1) / tick rate
         self._asked = False              # a set or reset asked and not yet started
         self._on: tuple[str, float] | None = None    # the pulse the driver runs: (kind, start s)
@@ -83,6 +93,8 @@ class LatchFirmwareDevice(LatchDevice):
     def _driver_tick(self) -> None:
         t = self._tick_time(self._tick)
         self._tick += 1
+        if self._boosted:
+            self.lib.fil_current(self._reading(t))
         events = int(self.lib.fil_tick())
         if not events:
             return
@@ -100,12 +112,23 @@ class LatchFirmwareDevice(LatchDevice):
                 self._on = (pulse, t)
                 self.starts.append(self._on)
                 self._record(t, (pulse, 2.0 * self.pulse_time(pulse)))
+            elif kind == EventKind.FAULT:
+                self.faults.append((t, value))
             elif kind == EventKind.OFF and self._on is not None:
                 if mask != 0:
                     raise RuntimeError(f"the driver sends OFF with the switches {mask:#x} on")
                 pulse, start = self._on
                 self._on = None
                 self._replan(self._rec, (pulse, t - start), t)
+
+    def _reading(self, t: float) -> int:
+        """The current-sense ADC code at ``t`` s (0 between pulses): the running pulse's
+        current through a nominal chain (floor, clipped)."""
+        if self._on is None or self._rec is None:
+            return 0
+        s, b = self.drive.board.sense, self.drive.board
+        i = float(self._sensed(self._rec.w, np.array([t - self._on[1]]))[0])
+        return adc_code(i * s.resistance * s.gain, b.adc.reference, b.adc.bits)
 
     def _mask(self, kind: str) -> int:
         return next(m for m, k in self._kind_of_mask.items() if k == kind)

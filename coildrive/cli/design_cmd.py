@@ -139,7 +139,7 @@ def _simulate_latch(drive, v: float, t: float, csv: Path, r_factor: float, l_fac
                          "thermal.max_coil_temp (the coil_temperature check), so there is no interval "
                          "between pulses to simulate")
     # the lengths the firmware runs at this supply (a compensated pulse's table entry)
-    length = {name: firmware_pulse(d, name, v) for name in by}
+    length = {name: firmware_pulse(d, name, v, t, r_factor, l_factor) for name in by}
     try:
         w = latch_actuation(drive, winding_drive(drive, True), v, t, length["set"], length["reset"],
                             d.latch.interval_s, r_factor, l_factor, 40 * points)

@@ -5,7 +5,10 @@
 ``<prefix>_driver.h`` / ``.c`` from ``codegen_templates/driver/latch_driver.*.j2``. The
 driver runs each pulse for the header's SET_PULSE_TICKS / RESET_PULSE_TICKS scheduler
 ticks and starts no pulse sooner than MIN_INTERVAL_TICKS after the last one's start (a
-request waits, it is not dropped); docs/firmware.md, *A latching coil*.
+request waits, it is not dropped); docs/firmware.md, *A latching coil*. Pulses from the
+boost: the boost switch on with the winding's, each pulse ending at the tick whose
+current-sense reading (``<prefix>_current(code)``) reaches its threshold code, its ticks the
+time-out (then a FAULT event).
 
 :func:`latch_budget_notes` says what its tick handler takes of the tick at the board's
 clock, as :func:`coildrive.codegen.driver.budget_notes` does for the peak-and-hold driver.
@@ -13,7 +16,7 @@ clock, as :func:`coildrive.codegen.driver.budget_notes` does for the peak-and-ho
 
 from __future__ import annotations
 
-from ..bench.messages import EventKind
+from ..bench.messages import EventKind, FaultCode
 from ..design.latch import LatchDesign
 from ..errors import InputError
 from ..model.bridge import switch_mask
@@ -26,6 +29,8 @@ from .latch_header import generate_latch_header
 #: BRIDGE_ bits); a reset winding: bit 0 the set winding's switch, bit 1 the reset's.
 BRIDGE_PULSE_SWITCHES = {"set": ("high_a", "low_b"), "reset": ("high_b", "low_a")}
 WINDING_PULSE_SWITCHES = {"set": 0x1, "reset": 0x2}
+#: Pulses from the boost (two windings): bit 2 is the boost switch, on with either winding's.
+BOOST_SWITCH = 0x4
 #: The ON event's value of each pulse (docs/protocol.md, the model device's).
 PULSE_VALUE = {"set": 0, "reset": 1}
 #: Worst cycles of the latch driver's tick (every path: a request waiting for the
@@ -43,13 +48,20 @@ LATCH_TICK_INSTRUCTIONS = {"cortex-m0plus": 70, "cortex-m3": 63, "cortex-m4": 63
 #: fails as above.
 LATCH_COMPENSATED_TICK_CYCLES = {"avr": 443, "cortex-m0plus": 296, "cortex-m3": 303, "cortex-m4": 303}
 LATCH_COMPENSATED_TICK_INSTRUCTIONS = {"cortex-m0plus": 204, "cortex-m3": 183, "cortex-m4": 183}
+#: The same with pulses from the boost: each tick of a pulse reads the current (twice, no
+#: torn value) and compares it with the threshold code; the worst path is a time-out (the
+#: OFF and the FAULT events). The boosted example's program on the same parts;
+#: tests/test_latch_boost_driver.py measures again and fails as above.
+LATCH_BOOSTED_TICK_CYCLES = {"avr": 249, "cortex-m0plus": 175, "cortex-m3": 158, "cortex-m4": 158}
+LATCH_BOOSTED_TICK_INSTRUCTIONS = {"cortex-m0plus": 94, "cortex-m3": 86, "cortex-m4": 86}
 
 
 def pulse_switches(design: LatchDesign) -> dict[str, int]:
     """The switch mask of each pulse (``set``, ``reset``) for the design's topology."""
     if design.latch.topology == "full_bridge":
         return {k: switch_mask(v) for k, v in BRIDGE_PULSE_SWITCHES.items()}
-    return dict(WINDING_PULSE_SWITCHES)
+    boost = BOOST_SWITCH if design.drive.supply.boosted else 0
+    return {k: v | boost for k, v in WINDING_PULSE_SWITCHES.items()}
 
 
 class LatchDriverView:
@@ -69,8 +81,11 @@ class LatchDriverView:
             raise InputError(source, "thermal.max_coil_temp", "no interval between pulses keeps the coil "
                              "below its limit (the coil_temperature check), expected one for firmware-driver")
         self.bridge = lt.topology == "full_bridge"
-        masks = pulse_switches(d)
+        masks = WINDING_PULSE_SWITCHES if not self.bridge else pulse_switches(d)
         m = self.macro
+        #: pulses from the boost: the boost switch on with the winding's, each pulse ending
+        #: at its threshold code (``<prefix>_current(code)``), its ticks the time-out
+        self.boosted = d.drive.supply.boosted
         if self.bridge:
             what = {"set": "Q1 + Q4, A to B", "reset": "Q3 + Q2, B to A (the other polarity)"}
         else:
@@ -85,12 +100,19 @@ class LatchDriverView:
             Constant(f"{m}_DRIVER_SET_VALUE", PULSE_VALUE["set"], "ON event value of the set pulse"),
             Constant(f"{m}_DRIVER_RESET_VALUE", PULSE_VALUE["reset"], "ON event value of the reset pulse"),
         ]
+        if self.boosted:
+            self.constants += [
+                Constant(f"{m}_DRIVER_BOOST_SWITCH", BOOST_SWITCH, "bit 2: the boost switch, on with either "
+                         "pulse's winding"),
+                Constant(f"{m}_DRIVER_FAULT_BOOST_TIMEOUT", int(FaultCode.BOOST_TIMEOUT),
+                         "FAULT event value: a pulse reached its time-out before its threshold")]
         self.tick_type = c_uint_type(max(lt.interval_ticks, max(p.ticks for p in lt.pulses), 0x100))
         #: supply-compensated pulses: the driver takes each pulse's ticks from the latest
         #: supply reading (``<prefix>_supply(code)``) through the latch header's lookups
         self.compensated = any(p.table is not None for p in lt.pulses)
         self.adc_type = c_uint_type(2**d.drive.board.adc.bits - 1)
-        self.event_kinds = [(k.name, int(k)) for k in (EventKind.ON, EventKind.OFF)]
+        self.event_kinds = [(k.name, int(k)) for k in (EventKind.ON, EventKind.OFF)
+                            + ((EventKind.FAULT,) if self.boosted else ())]
 
 
 def render_latch_driver(design: LatchDesign, prefix: str = "coil") -> dict[str, str]:
@@ -125,7 +147,9 @@ def latch_budget_notes(design: LatchDesign) -> list[str]:
     board = design.drive.board
     core = board.core if board.core in LATCH_TICK_CYCLES else "avr"
     compensated = any(p.table is not None for p in design.latch.pulses)
-    cycles = (LATCH_COMPENSATED_TICK_CYCLES if compensated else LATCH_TICK_CYCLES)[core]
+    table = (LATCH_BOOSTED_TICK_CYCLES if design.drive.supply.boosted else
+             LATCH_COMPENSATED_TICK_CYCLES if compensated else LATCH_TICK_CYCLES)
+    cycles = table[core]
     period = board.timer.clock / board.tick.rate
     share = cycles / period
     mhz = board.timer.clock / 1e6

@@ -1,5 +1,6 @@
 """The firmware header of a latching coil: both pulse lengths and the shortest interval
-between pulses as C constants (``codegen_templates/latch_header.h.j2``), and with
+between pulses as C constants (``codegen_templates/latch_header.h.j2``; pulses from the
+boost: each pulse's threshold code, its time-out in the pulse's ticks), and with
 ``pull_in.compensate`` each pulse's table of ticks against the supply reading and its
 lookup function. Pure: a :class:`~coildrive.design.latch.LatchDesign` in, text out."""
 
@@ -29,6 +30,18 @@ def latch_constants(d: LatchDesign, m: str) -> list[Constant]:
                     f"the same in ms ({r.interval_s * 1e3:.4g} ms)"),
            Constant(f"{m}_DECAY_TICKS", math.ceil(max(p.decay_time_s for p in r.pulses) * r.tick_rate_hz - 1e-9),
                     "after a pulse the current is zero within this (never start the other polarity sooner)")]
+    if s.boost is not None:
+        out[2:4] = [Constant(f"{m}_{p.name.upper()}_PULSE_TICKS", p.ticks,
+                             f"{p.name} pulse's time-out {p.time_s * 1e3:.4g} ms ({p.margin:g} x the slowest "
+                             f"{p.boost.time_to_threshold_s * 1e3:.4g} ms, +1 tick): it ends at its threshold, "
+                             "a pulse still on by then is a fault") for p in (s, t)]
+        out += [Constant(f"{m}_LATCH_BOOSTED", 1, "both pulses from the boost (the boost switch on with the "
+                         "winding's), each until its threshold code")]
+        out += [Constant(f"{m}_{p.name.upper()}_THRESHOLD_CODE", p.boost.threshold_code,
+                         f"{p.name} pulse ends when the current-sense reading is >= this "
+                         f"({p.boost.threshold_a:.4g} A; compare once a tick)") for p in (s, t)]
+        out.append(Constant(f"{m}_BOOST_RECHARGE_MS", math.ceil(r.boost_interval_s * 1e3 - 1e-9),
+                            "the longest pulse + the boost's recharge at its power (in the interval above)"))
     if s.table is not None:
         out.append(Constant(f"{m}_PULSE_COMPENSATED", 1, "each pulse's ticks looked up against the supply "
                             "reading (the *_PULSE_TICKS above: the longest entry)"))

@@ -44,7 +44,9 @@ def at_boost(drive: Drive, v_b, c, r_on, inductance) -> model.Boost:
     return model.boost(v_b, c, r_on + drive.supply.boost_resistance, inductance, r_e)
 
 
-def _boost(drive: Drive, lp, inductance, high: bool) -> model.Boost:
+def boost_side(drive: Drive, lp, inductance, high: bool) -> model.Boost:
+    """The boost at its lowest (voltage and capacitance less their tolerances) or, with
+    ``high``, at its highest, feeding the loop ``lp`` and the coil ``inductance``."""
     s = drive.supply
     sign = 1.0 if high else -1.0
     return at_boost(drive, s.boost * (1.0 + sign * s.boost_tolerance),
@@ -55,24 +57,26 @@ def rise_time(drive: Drive, lp, i_target, inductance, high: bool = False, sensed
     """Time (s) to ``i_target`` A from the boost at its lowest (``high``: at its highest),
     at the points of ``lp``; ``sensed``: of the terminal current (what the sense reads;
     with an eddy term it leads the magnetising current), else of the magnetising current."""
-    b = _boost(drive, lp, inductance, high)
+    b = boost_side(drive, lp, inductance, high)
     return model.of(b).threshold_time(i_target, b, sensed=sensed)
 
 
 def rise_current(drive: Drive, lp, t, inductance) -> np.ndarray:
     """Current (A) ``t`` s after switch-on from the boost at its lowest."""
-    b = _boost(drive, lp, inductance, False)
+    b = boost_side(drive, lp, inductance, False)
     return model.of(b).state(t, b)[0]
 
 
 def steady_current(drive: Drive, lp) -> np.ndarray:
     """The most current the boost at its lowest drives (A): its first maximum, or ``V/R``."""
-    b = _boost(drive, lp, lp.inductance, False)
+    b = boost_side(drive, lp, lp.inductance, False)
     return model.of(b).highest_current(b)
 
 
-def threshold(drive: Drive) -> tuple[float, int, float]:
-    """``(threshold A, ADC code, highest true current at which that code trips A)``.
+def threshold(drive: Drive, current: float | None = None) -> tuple[float, int, float]:
+    """``(threshold A, ADC code, highest true current at which that code trips A)``;
+    ``current``: the threshold's current (A) before any eddy share, ``pull_in.current_margin``
+    x the pull-in current unless given (a latching coil's pulse gives its own).
 
     With an eddy term the sense sees the terminal current ``k (i_m + v_C/R_e)``, which
     leads the magnetising current (the flux, the force): the threshold is raised by the
@@ -82,7 +86,7 @@ def threshold(drive: Drive) -> tuple[float, int, float]:
     vpa = b.sense.resistance * b.sense.gain
     lsb = b.adc.reference / 2**b.adc.bits
     low, high = reading_factors(drive)
-    i_th = drive.pull_in.current_margin * drive.pull_in.current
+    i_th = drive.pull_in.current_margin * drive.pull_in.current if current is None else current
     if drive.coil.eddy_resistance:
         s = drive.supply
         i_th += s.boost * (1.0 + s.boost_tolerance) / drive.coil.eddy_resistance
@@ -90,10 +94,12 @@ def threshold(drive: Drive) -> tuple[float, int, float]:
     return i_th, code, code * lsb / (vpa * low)
 
 
-def nominal_trip(drive: Drive) -> float:
-    """The true current (A) at which the threshold code trips with a nominal sense chain."""
+def nominal_trip(drive: Drive, code: int | None = None) -> float:
+    """The true current (A) at which the threshold code (``code`` where given) trips with a
+    nominal sense chain."""
     b = drive.board
-    return threshold(drive)[1] * (b.adc.reference / 2**b.adc.bits) / (b.sense.resistance * b.sense.gain)
+    code = threshold(drive)[1] if code is None else code
+    return code * (b.adc.reference / 2**b.adc.bits) / (b.sense.resistance * b.sense.gain)
 
 
 def firmware_peak(design, supply: float, coil_temp: float, r_factor: float = 1.0,
@@ -126,19 +132,21 @@ def peak_in_force(design, supply: float, coil_temp: float, r_factor: float = 1.0
     return firmware_peak(design, supply, coil_temp, r_factor, l_factor)
 
 
-def _seen(drive: Drive, b: model.Boost) -> np.ndarray:
+def _seen(drive: Drive, b: model.Boost, trip: float | None = None, late: float | None = None) -> np.ndarray:
     """When the firmware sees the threshold at the latest (s; ``inf`` where never): the
-    highest trip current (the chain reading low), one conversion
-    (:func:`~coildrive.design.timer.conversion_period`) late. (With an eddy term the sense sees the terminal current, which leads the
-    magnetising current.)"""
-    return model.of(b).threshold_time(threshold(drive)[2], b, sensed=True) + conversion_period(drive)
+    highest trip current (the chain reading low; ``trip`` A where given), one conversion
+    (:func:`~coildrive.design.timer.conversion_period`; ``late`` s where given) late. (With
+    an eddy term the sense sees the terminal current, which leads the magnetising current.)"""
+    trip = threshold(drive)[2] if trip is None else trip
+    late = conversion_period(drive) if late is None else late
+    return model.of(b).threshold_time(trip, b, sensed=True) + late
 
 
 def slowest_peak(drive: Drive, lp) -> np.ndarray:
     """The longest peak at each point (s; ``inf`` where the threshold is never reached):
     the boost at its lowest until the firmware sees the threshold. Its worst x
     ``pull_in.margin`` is the time-out."""
-    return _seen(drive, _boost(drive, lp, lp.inductance, False))
+    return _seen(drive, boost_side(drive, lp, lp.inductance, False))
 
 
 def earliest_trip(drive: Drive, lp) -> np.ndarray:
@@ -147,7 +155,7 @@ def earliest_trip(drive: Drive, lp) -> np.ndarray:
     trips). With an eddy term the terminal current leads the magnetising current, so the
     flux's current at the end of the peak is below the threshold (the ``pull_in_force``
     check takes it there)."""
-    b = _boost(drive, lp, lp.inductance, False)
+    b = boost_side(drive, lp, lp.inductance, False)
     return model.of(b).threshold_time(threshold(drive)[0], b, sensed=True)
 
 
@@ -160,7 +168,7 @@ def peak_heat(drive: Drive, lp, peak_time) -> np.ndarray:
     (:func:`coildrive.model.boost.eddy_loss`)."""
     heat = np.zeros(np.shape(lp.r_coil))
     for high in (False, True):
-        b = _boost(drive, lp, lp.inductance, high)
+        b = boost_side(drive, lp, lp.inductance, high)
         t = np.minimum(_seen(drive, b), peak_time)
         m = model.of(b)
         heat = np.maximum(heat, lp.r_coil * m.square_integral(t, b) + m.eddy_loss(t, b))
@@ -174,7 +182,7 @@ def shortest_peak(drive: Drive, lp, peak_time, inductance=None) -> np.ndarray:
     ``inductance``: the coil's (H) if not the loop's (a moving armature's open coil, whose
     rise is no slower than the moving armature's)."""
     coil = lp.inductance if inductance is None else inductance
-    return np.minimum(_seen(drive, _boost(drive, lp, coil, True)), peak_time)
+    return np.minimum(_seen(drive, boost_side(drive, lp, coil, True)), peak_time)
 
 
 def sampled_pull_in(drive: Drive, res, v_factor, c_factor):
@@ -193,7 +201,7 @@ def end_current(drive: Drive, lp) -> np.ndarray:
     """The highest current at the end of the peak (A) at each point: the boost at its
     highest, up to the highest trip current, one conversion late (the terminal current:
     what the switch interrupts)."""
-    b = _boost(drive, lp, lp.inductance, True)
+    b = boost_side(drive, lp, lp.inductance, True)
     t = _seen(drive, b)
     m = model.of(b)
     return np.where(np.isfinite(t), m.current(np.where(np.isfinite(t), t, 0.0), b, sensed=True),
@@ -205,7 +213,7 @@ def handover(drive: Drive, lp) -> tuple[np.ndarray, np.ndarray]:
     its highest (the firmware seeing the highest trip current one conversion late, or the
     current's first maximum where it never does: 0 s for an ideal boost that never gets
     there) and the current then, :func:`end_current` (the most the main bus takes on)."""
-    b = _boost(drive, lp, lp.inductance, True)
+    b = boost_side(drive, lp, lp.inductance, True)
     t = _seen(drive, b)
     t = np.where(np.isfinite(t), t, model.of(b).peak_time(b, sensed=True))
     return np.where(np.isfinite(t), t, 0.0), end_current(drive, lp)
@@ -281,12 +289,25 @@ def boosted_turn_offs(drive: Drive, grid: CornerGrid, res, offs: list[dict]) -> 
 def boost_result(drive: Drive, grid: CornerGrid, res, rate: float) -> BoostResult:
     """The boosted peak's figures over the points of ``res`` (hot coil at every corner for
     the slow side); ``rate`` the scheduler tick rate (Hz)."""
+    runs = None if res.armature is None else res.armature.boost
+    return boost_figures(drive, res.loop, _release_loop(res), res.supply, grid.label, rate,
+                         threshold(drive), conversion_period(drive), drive.pull_in.margin, runs)
+
+
+def boost_figures(drive: Drive, lp, rel, supply, label, rate: float, thr: tuple[float, int, float],
+                  late: float, margin: float, runs=None) -> BoostResult:
+    """A pulse from the boost that ends at a current threshold, over the points of ``lp``
+    (the loop with its switch on; ``rel`` the turn-off's, ``supply`` the main supply V at
+    each point, ``label(k)`` names point ``k``): the threshold ``thr``
+    (:func:`threshold`), seen up to ``late`` s late, the time-out the slowest x ``margin``
+    in ticks at ``rate`` Hz, +1. The boosted peak's (:func:`boost_result`, with a moving
+    armature its ``runs``) and each pulse of a latching coil's
+    (:mod:`coildrive.design.latch_boost`)."""
     s = drive.supply
-    lp = res.loop
-    i_th, code, i_trip = threshold(drive)
-    slow = _boost(drive, lp, lp.inductance, False)
-    fast = _boost(drive, lp, lp.inductance, True)
-    t_slow = _seen(drive, slow)            # the longest peak at each point
+    i_th, code, i_trip = thr
+    slow = boost_side(drive, lp, lp.inductance, False)
+    fast = boost_side(drive, lp, lp.inductance, True)
+    t_slow = _seen(drive, slow, i_trip, late)   # the longest peak at each point
     finite = np.isfinite(t_slow)
     reached = bool(np.all(finite))
     m = model.of(slow)
@@ -299,15 +320,14 @@ def boost_result(drive: Drive, grid: CornerGrid, res, rate: float) -> BoostResul
     # feeds the coil)
     t_low = np.where(finite, t_slow, 0.0)
     v_low = m.state(t_low, slow)[1]
-    headroom = np.where(finite, v_low - np.asarray(res.supply, float), -np.inf)
+    headroom = np.where(finite, v_low - np.asarray(supply, float), -np.inf)
     k_low = int(np.argmin(headroom))
     # fast side: the most current, energy and switch voltage
-    t_end = _seen(drive, fast)
+    t_end = _seen(drive, fast, i_trip, late)
     t_end = np.where(np.isfinite(t_end), t_end, m.peak_time(fast, sensed=True))
     i_m_end, v_end = m.state(t_end, fast)
     i_end = m.terminal(i_m_end, v_end, fast)
     energy = np.maximum(m.energy_drawn(t_end, fast), m.energy_drawn(t_low, slow))
-    runs = None if res.armature is None else res.armature.boost
     if runs is not None:   # a moving armature: its runs from the boost (design/boost_armature.py)
         t_slow = runs.long_time
         finite = np.isfinite(t_slow)
@@ -316,18 +336,17 @@ def boost_result(drive: Drive, grid: CornerGrid, res, rate: float) -> BoostResul
         t_fast = runs.fast_time
         k_fast = int(np.argmin(t_fast))
         v_low = np.where(finite, runs.low_boost, np.nan)
-        headroom = np.where(finite, v_low - np.asarray(res.supply, float), -np.inf)
+        headroom = np.where(finite, v_low - np.asarray(supply, float), -np.inf)
         k_low = int(np.argmin(headroom))
         t_end = t_slow
         i_end, v_end = runs.end_current, runs.end_boost
         energy = np.where(np.isfinite(runs.energy), runs.energy, 0.0)
     k_e, k_i = int(np.argmax(energy)), int(np.argmax(i_end))
     v_top = s.boost * (1.0 + s.boost_tolerance)
-    rel = _release_loop(res)
     v_sw = _turn_off_voltage(drive, rel, v_top, i_end)
     v_sw_end = _turn_off_voltage(drive, rel, v_end, i_end)
     k_v = int(np.argmax(v_sw))
-    timeout = (math.ceil(float(t_slow[k_slow]) * drive.pull_in.margin * rate - 1e-9) + 1) if reached else None
+    timeout = (math.ceil(float(t_slow[k_slow]) * margin * rate - 1e-9) + 1) if reached else None
     recharge = interval = None
     if s.boost_power > 0:
         recharge = float(model.recharge_time(energy[k_e], s.boost_power))
@@ -342,18 +361,18 @@ def boost_result(drive: Drive, grid: CornerGrid, res, rate: float) -> BoostResul
         threshold_a=i_th, threshold_code=code, trip_max_a=i_trip,
         code_fits=code <= 2**drive.board.adc.bits - 1,
         time_to_threshold_s=float(t_slow[k_slow]) if reached else None,
-        time_to_threshold_corner=grid.label(k_slow),
-        fastest_time_s=float(t_fast[k_fast]), fastest_corner=grid.label(k_fast),
+        time_to_threshold_corner=label(k_slow),
+        fastest_time_s=float(t_fast[k_fast]), fastest_corner=label(k_fast),
         timeout_ticks=timeout, timeout_s=None if timeout is None else timeout / rate,
         reachable_current_a=float(reachable[k_slow] if not reached else np.min(reachable)),
-        end_current_max_a=float(i_end[k_i]), end_current_corner=grid.label(k_i),
-        lowest_boost_v=float(v_low[k_low]) if reached else None, lowest_boost_corner=grid.label(k_low),
-        main_supply_there_v=float(res.supply[k_low]),
+        end_current_max_a=float(i_end[k_i]), end_current_corner=label(k_i),
+        lowest_boost_v=float(v_low[k_low]) if reached else None, lowest_boost_corner=label(k_low),
+        main_supply_there_v=float(np.broadcast_to(supply, np.shape(v_low))[k_low]),
         droop_v=float(s.boost * (1.0 - s.boost_tolerance) - v_low[k_low]) if reached else None,
-        energy_j=float(energy[k_e]), energy_corner=grid.label(k_e),
+        energy_j=float(energy[k_e]), energy_corner=label(k_e),
         stored_energy_j=0.5 * cap * (1.0 + s.boost_capacitance_tolerance) * v_top**2,
         recharge_time_s=recharge, min_interval_s=interval,
-        switch_voltage_v=float(v_sw[k_v]), switch_voltage_corner=grid.label(k_v),
+        switch_voltage_v=float(v_sw[k_v]), switch_voltage_corner=label(k_v),
         end_switch_voltage_v=float(v_sw_end[k_v]))
 
 

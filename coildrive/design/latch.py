@@ -23,6 +23,11 @@ zero, the coil's temperature (:mod:`coildrive.model.latch`: the larger pulse's c
 heat every interval, from the hottest ambient, up to ``thermal.max_coil_temp``), and the
 capacitor's recharge to the bus the pulses were designed from.
 
+From the boost (``[supply] boost``; a linear coil's two windings on a stiff main supply):
+each pulse ends at its own current threshold with a time-out, its energy is drawn from
+the boost, and the boost's recharge enters the interval
+(:mod:`coildrive.design.latch_boost`).
+
 A flux-linkage curve (the set winding's, or the bridge's one coil's) takes every segment
 on the curve (:mod:`coildrive.model.flux`; on a drooping bus :mod:`coildrive.model.flux_bus`),
 the on-time's integrals by :func:`coildrive.model.flux.rise_integrals` (exact over a flat
@@ -55,12 +60,15 @@ from ..model.rl import decay_integrals, decay_time, rise_current, rise_integrals
 from ..model.topology import topology_of
 from .checks import SAFETY_CAUTION
 from .corners import tolerance_label
+from . import latch_boost
+from .boost import boost_cautions
+from .boost import rise_time as boost_rise_time
 from .datasheet import derived_values
 from .envelope import supply_codes, table_index
 from .figures import adc_code, worst
 from .peak import _ticks, requirement
 from .regulation import table_supplies
-from .result import Check, Verdict
+from .result import BoostResult, Check, Verdict
 from .supply import bus_at, model_of, rise_time, steady_current
 
 
@@ -95,7 +103,12 @@ class PulseResult:
     ``freewheel_j`` (the freewheel path: a bridge's two body diodes), ``returned_j`` (back
     to the bus: a bridge's fast decay; 0 otherwise), ``eddy_j`` (an eddy-current term's
     resistance, on, freewheeling and while the flux dies through it alone; 0 without one);
-    ``supply_j`` is the sum of the other five. ``stored_j``: the energy in the coil's field when the pulse ends (there), which
+    ``supply_j`` is the sum of the other five. From the boost (``[supply] boost``,
+    :mod:`coildrive.design.latch_boost`): ``supply_j`` is the boost's, ``boost_j`` the boost
+    path's ``R_b`` (``supply_j`` the sum of copper, switch and sense, boost path and
+    freewheel), ``boost`` the pulse's threshold, time-out, droop, energy and recharge (the
+    boosted peak's :class:`~coildrive.design.result.BoostResult`), ``ticks`` the time-out
+    and ``shortest_s`` the fastest time to the threshold. ``stored_j``: the energy in the coil's field when the pulse ends (there), which
     its decay takes out again: ``int_0^I i dpsi`` on a flux-linkage curve (``I psi(I) -
     W'(I)``), ``1/2 L I^2`` for a linear coil (the magnetising branch's with an eddy
     term). ``decay_time_s``: after the pulse, the longest time to zero current.
@@ -151,6 +164,8 @@ class PulseResult:
     seat_corner: str = ""
     open_time_s: float | None = None
     eddy_j: float = 0.0
+    boost_j: float = 0.0
+    boost: BoostResult | None = None
 
 
 @dataclass(frozen=True)
@@ -179,7 +194,8 @@ class LatchResult:
     ``decay_interval_s`` (the pulse and its decay to zero), ``thermal_interval_s`` (the
     coil's temperature; 0 without self-heating) and ``recharge_interval_s`` (the
     capacitor; 0 on a stiff bus) and ``armature_interval_s`` (a reset pulse's start to the
-    armature at rest on the open stop; 0 without ``[armature]``). ``pulse_heat_j``: the copper heat per pulse the
+    armature at rest on the open stop; 0 without ``[armature]``) and ``boost_interval_s``
+    (the longest pulse from the boost + its recharge; 0 without a boost). ``pulse_heat_j``: the copper heat per pulse the
     thermal interval is for (the larger pulse's), ``coil_rise_per_pulse_k`` = that / the
     heat capacity, ``hottest_coil_c`` the coil just after a pulse when pulsing at the
     interval (from ``ambient.max``), ``coil_limit_c`` the limit."""
@@ -200,6 +216,9 @@ class LatchResult:
     tick_rate_hz: float
     armature_interval_s: float = 0.0
     cycle: LatchCycle | None = None
+    #: the pulses from the boost: the longest pulse + the boost's recharge of the larger
+    #: pulse's energy at ``boost_power`` (0 without a boost, or without a power)
+    boost_interval_s: float = 0.0
     #: what the set coil's datasheet keys gave (:func:`coildrive.design.datasheet.derived_values`)
     derived: list = dataclasses.field(default_factory=list)
 
@@ -286,6 +305,8 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     droops = drive.supply.droops
     scale = 1.0 - lt.recharge_tolerance if droops else 1.0
     pts = _points(drive, coil, scale)
+    if drive.supply.boosted:
+        return _boosted(wd, pts, name, winding, switches, current, margin, cm)
     lp, t_req, t_force, pin, p_arm = _requirements(wd, pts, current, cm)
     ticks, by_time, by_force = requirement(drive, t_req, t_force, margin, settle)
     rate = drive.board.tick.rate
@@ -482,6 +503,48 @@ def _bus_check(drive: Drive, name: str, bus_top, pts: Points) -> Check:
                  + ("" if ok else " -- a higher-rated or larger capacitor, a lower source resistance"))
 
 
+def _boosted(wd: Drive, pts: Points, name: str, winding: str, switches: str, current: float,
+             margin: float, cm: float) -> tuple[PulseResult, list[Check]]:
+    """A pulse from the boost, ending at its threshold (:mod:`coildrive.design.latch_boost`):
+    ``ticks`` is its time-out, ``shortest_s`` the fastest time to the threshold,
+    ``end_current_a`` the threshold (the least any pulse ends at), the energies from the
+    boost, and the switch voltage from the boost at full charge."""
+    lp, rel = pulse_loop(wd, pts), release_loop(wd, pts)
+    b = latch_boost.pulse_figures(wd, lp, rel, pts.supply, pts.label, current, cm, margin)
+    e = latch_boost.energies(wd, lp, rel, pts.sense_factor, b)
+    t_req = boost_rise_time(wd, lp, current, lp.inductance)
+    k_req = worst(t_req)
+    reached = b.time_to_threshold_s is not None
+    not_reached = None if reached else (
+        f"not reached: the boost at its lowest drives at most {b.reachable_current_a:.4g} A < "
+        f"{b.threshold_a:.4g} A at {b.time_to_threshold_corner}")
+    topo = topology_of(wd)
+    v_main = rel.switch_voltage(wd, np.full(np.shape(pts.supply), e["end_current_a"]))
+    node = float(np.min(topo.node_voltage(pts.supply, v_main, 0.0 * v_main))) if topo.shows_node else None
+    result = PulseResult(
+        name=name, winding=winding, switches=switches + " and the boost switch", current_a=current,
+        margin=margin, current_margin=cm, settle_time_s=0.0, ticks=b.timeout_ticks,
+        time_s=b.timeout_s or 0.0, shortest_s=b.fastest_time_s if reached else 0.0,
+        worst_time_s=float(t_req[k_req]), worst_corner=pts.label(k_req), force_current_a=cm * current,
+        force_time_s=float(np.max(boost_rise_time(wd, lp, cm * current, lp.inductance))),
+        governed_by="current threshold" if reached else "", end_current_a=b.threshold_a if reached else 0.0,
+        not_reached=not_reached, supply_j=e["supply_j"], copper_j=e["copper_j"],
+        switch_sense_j=e["switch_sense_j"], freewheel_j=e["freewheel_j"], returned_j=0.0, boost_j=e["boost_j"],
+        stored_j=e["stored_j"], energy_corner=pts.label(e["k"]) + (", the boost at its highest" if e["high"]
+                                                                   else ", the boost at its lowest"),
+        decay_time_s=e["decay_time_s"], peak_switch_voltage_v=b.switch_voltage_v,
+        switch_voltage_corner=b.switch_voltage_corner + ", from the boost at full charge", droop_v=0.0,
+        recharge_time_s=0.0, recharge_corner="", lowest_node_v=node, boost=b)
+    limit = wd.switch.max_voltage * wd.switch.derating
+    out = latch_boost.checks(name, b, wd)
+    out.append(Check(f"{name}_switch_voltage", b.switch_voltage_v <= limit,
+                     f"turning off up to {b.end_current_max_a:.4g} A from the boost at full charge, the "
+                     f"switch sees up to {b.switch_voltage_v:.4g} V at the end of the {name} pulse "
+                     f"({b.switch_voltage_corner}) vs {limit:.4g} V ({wd.switch.derating:.0%} of the "
+                     f"{wd.switch.max_voltage:.4g} V rating)"))
+    return result, out
+
+
 def _requirements(wd: Drive, pts: Points, current: float, cm: float):
     """``(loop, time to current s, time to cm x current s, seat run, its params)`` at the
     points; with a moving armature the time to current is its seat time (module docstring)."""
@@ -528,11 +591,19 @@ def table_lengths(drive: Drive, table: PulseTable, supply) -> tuple[np.ndarray, 
     return (ent[table_index(table.adc_codes, high)] - 1) / rate, ent[table_index(table.adc_codes, low)] / rate
 
 
-def firmware_pulse(d: LatchDesign, name: str, supply: float) -> float:
+def firmware_pulse(d: LatchDesign, name: str, supply: float, coil_temp: float | None = None,
+                   r_factor: float = 1.0, l_factor: float = 1.0) -> float:
     """The length (s) of pulse ``name`` the firmware runs at bus voltage ``supply`` (its
     reading at the nominal divider, looked up as the header's function does; without a
-    table the fixed pulse)."""
+    table the fixed pulse). A pulse from the boost ends at its threshold, so its length
+    depends on the coil too: at ``coil_temp`` degC (needed then) and the factors
+    (:func:`coildrive.design.latch_boost.firmware_time`)."""
     p = next(x for x in d.latch.pulses if x.name == name)
+    if p.boost is not None:
+        if coil_temp is None:
+            raise ValueError("a pulse from the boost needs the coil's temperature for its length")
+        return latch_boost.firmware_time(winding_drive(d.drive, name == "reset"), p.boost, supply, coil_temp,
+                                         r_factor, l_factor)
     if p.table is None:
         return p.time_s
     b = d.drive.board
@@ -672,8 +743,10 @@ def design_latch(drive: Drive) -> LatchDesign:
     t_decay = max(p.time_s + p.decay_time_s for p in pulses)
     t_rc = max(p.time_s + p.recharge_time_s for p in pulses)
     t_open = max(p.open_time_s or 0.0 for p in pulses)
+    t_boost = max((p.boost.min_interval_s or 0.0) if p.boost is not None else 0.0 for p in pulses)
     parts = {"the pulse and its decay to zero": t_decay, "the coil's temperature": t_th,
-             "the capacitor's recharge": t_rc, "the armature's travel to the open stop": t_open}
+             "the capacitor's recharge": t_rc, "the armature's travel to the open stop": t_open,
+             "the boost's recharge": t_boost}
     governed = max(parts, key=parts.get)
     interval = parts[governed]
     rate = drive.board.tick.rate
@@ -698,6 +771,7 @@ def design_latch(drive: Drive) -> LatchDesign:
         topology=drive.switch.topology, pulses=pulses, interval_s=interval, interval_ticks=ticks, cycle=cycle,
         governed_by=governed, decay_interval_s=t_decay, thermal_interval_s=t_th,
         recharge_interval_s=t_rc if drive.supply.droops else 0.0, armature_interval_s=t_open,
+        boost_interval_s=t_boost,
         derived=derived_values(drive),
         pulse_heat_j=heat,
         coil_rise_per_pulse_k=rise, hottest_coil_c=hottest, coil_limit_c=th.max_coil_temp,
@@ -747,6 +821,9 @@ def _cautions(drive: Drive, r: LatchResult) -> list[str]:
         out.append(f"At the end of a pulse the high-side switch's node swings to {min(nodes):.3g} V: the "
                    "gate driver's source pin, a diagnostics divider and the cable to the coil must take "
                    "that negative voltage.")
+    boosted = [p.boost for p in r.pulses if p.boost is not None]
+    if boosted:
+        out += boost_cautions(boosted[0])
     if full_bridge(drive):
         out.append("Never turn on both switches of one leg (Q1 with Q2, or Q3 with Q4): give the gate "
                    "drivers a dead time (common practice).")
@@ -772,6 +849,6 @@ def latch_waveforms(d: LatchDesign) -> dict:
               (drive.supply.min * scale, drive.thermal.max_coil_temp, 1 + rt, 1 + lt)}
     # no safe interval (a failing coil_temperature check): the reset right after the set decays
     gap = d.latch.interval_s if math.isfinite(d.latch.interval_s) else 0.0
-    return {label: latch_actuation(drive, winding_drive(drive, True), v, t, firmware_pulse(d, "set", v),
-                                   firmware_pulse(d, "reset", v), gap, rf, lf, 400)
+    return {label: latch_actuation(drive, winding_drive(drive, True), v, t, firmware_pulse(d, "set", v, t, rf, lf),
+                                   firmware_pulse(d, "reset", v, t, rf, lf), gap, rf, lf, 400)
             for label, (v, t, rf, lf) in points.items()}

@@ -14,7 +14,11 @@ zero after it. Failures count the samples whose shortest pulse does not reach it
 current, or does not carry ``current_margin`` x it. With a moving armature the set
 pulse's time is the armature's seat time (the same batched run as the design's) and
 ``set_not_seated`` counts the samples where it is not on the seat when the shortest
-pulse ends.
+pulse ends. Pulses from the boost (:mod:`coildrive.design.latch_boost`) also draw the
+boost's charge and capacitance uniformly within their tolerances: each pulse ends where
+the sample's sense chain reads its threshold code (the energy and the decay one tick
+later), and ``<pulse>_timed_out`` counts the samples whose threshold comes after the
+time-out.
 
 SI units (s, A, J).
 """
@@ -28,6 +32,7 @@ import numpy as np
 from ..config import Drive
 from .latch import (LatchDesign, Points, plain_pulse, pulse_loop, release_loop, rise_current_at,
                     seat_run, seated_pulse, table_lengths, time_to_zero, winding_drive)
+from . import latch_boost
 from .montecarlo import CHUNK, PERCENTILES, factors, summary
 from .supply import rise_time
 
@@ -55,6 +60,13 @@ def _figures(wd: Drive, pts: Points, current: float, t_short, t_long) -> tuple:
     return (t_req, i_end, lp.v_on * q_on, time_to_zero(wd, lp, rel, i_top))
 
 
+def _boost_figures(wd: Drive, pts: Points, p, v_factor, c_factor) -> tuple:
+    """The :data:`FIGURES` of a pulse from the boost at the points and whether it timed out
+    (:func:`coildrive.design.latch_boost.sample_figures`)."""
+    return latch_boost.sample_figures(wd, pulse_loop(wd, pts), release_loop(wd, pts), pts.sense_factor, p.boost,
+                                      p.current_a, v_factor, c_factor)
+
+
 def with_monte_carlo(d: LatchDesign, samples: int, seed: int = 1) -> LatchDesign:
     """``d`` with its Monte Carlo of ``samples`` samples (``monte_carlo``)."""
     return dataclasses.replace(d, monte_carlo=latch_monte_carlo(d, samples, seed))
@@ -78,10 +90,16 @@ def latch_monte_carlo(d: LatchDesign, samples: int, seed: int = 1, chunk: int = 
         if p.winding not in tol:   # a bridge's reset drives the same coil: the same draws
             tol[p.winding] = (factors(rng, coil.resistance_tolerance, samples, coil.tolerance_distribution),
                          factors(rng, coil.inductance_tolerance, samples, coil.tolerance_distribution))
+    boosted = drive.supply.boosted
+    if boosted:   # the boost's charge and capacitance, drawn last (the other draws as without it)
+        s = drive.supply
+        v_f = rng.uniform(1.0 - s.boost_tolerance, 1.0 + s.boost_tolerance, samples)
+        c_f = rng.uniform(1.0 - s.boost_capacitance_tolerance, 1.0 + s.boost_capacitance_tolerance, samples)
     for p in d.latch.pulses:
         wd = winding_drive(drive, p.name == "reset")
         rf, lf = tol[p.winding]
         values = tuple(np.full(samples, np.nan) for _ in FIGURES)
+        timed_out = np.zeros(samples, bool)
         # each sample's shortest and longest pulse (a compensated one's: the entries its readings select)
         short, long_ = (np.broadcast_to(x, supply.shape) for x in
                         ((p.shortest_s, p.time_s) if p.table is None else table_lengths(drive, p.table, supply)))
@@ -89,13 +107,19 @@ def latch_monte_carlo(d: LatchDesign, samples: int, seed: int = 1, chunk: int = 
             for start in range(0, samples, chunk):
                 sl = slice(start, min(start + chunk, samples))
                 pts = Points(supply[sl], temp[sl], rf[sl], lf[sl], sense[sl])
-                for arr, got in zip(values, _figures(wd, pts, p.current_a, short[sl], long_[sl])):
-                    arr[sl] = got
+                if boosted:
+                    *got, timed_out[sl] = _boost_figures(wd, pts, p, v_f[sl], c_f[sl])
+                else:
+                    got = _figures(wd, pts, p.current_a, short[sl], long_[sl])
+                for arr, fig in zip(values, got):
+                    arr[sl] = fig
         figs = dict(zip(FIGURES, values))
         out["pulses"][p.name] = {name: summary(v) for name, v in figs.items()}
         end = figs["end_current_a"]
         out["failures"][f"{p.name}_not_reached"] = int(np.sum(~(end >= p.current_a)))
         out["failures"][f"{p.name}_below_margin"] = int(np.sum(~(end >= p.current_margin * p.current_a)))
+        if boosted:
+            out["failures"][f"{p.name}_timed_out"] = int(np.sum(timed_out)) if p.ticks is not None else samples
         if wd.armature is not None:
             out["failures"][f"{p.name}_not_seated"] = int(np.sum(~(figs["time_to_current_s"] <= short)))
     return out

@@ -24,10 +24,15 @@ def plot_latch(d: LatchDesign, waveforms: dict) -> bytes:
             keep = (w.time >= t0) & (w.time <= end)
             ax.plot((w.time[keep] - t0) * 1e3, abs(current[keep]), label=label)
         ax.axhline(p.current_a, color="0.4", ls="--", lw=0.8, label=f"{name} current {p.current_a:.3g} A")
+        boosted = p.boost is not None   # from the boost: it ends at its threshold, the line is its time-out
         ax.axhline(p.force_current_a, color="0.4", ls=":", lw=0.8,
-                   label=f"x {p.current_margin:g} by the shortest pulse")
+                   label=f"x {p.current_margin:g}: its threshold" if boosted else
+                   f"x {p.current_margin:g} by the shortest pulse")
         ax.axvline(p.time_s * 1e3, color="k", lw=0.8)
-        ax.set_title(f"{name} pulse {p.time_s * 1e3:.4g} ms ({p.ticks} ticks), {p.switches}", fontsize=9)
+        ax.set_title((f"{name} pulse to {p.force_current_a:.3g} A from the boost, "
+                      + (f"time-out {p.time_s * 1e3:.4g} ms" if p.ticks else "never reached: to its first maximum"))
+                     if boosted else f"{name} pulse {p.time_s * 1e3:.4g} ms ({p.ticks} ticks), {p.switches}",
+                     fontsize=9)
         ax.set_xlabel("time from the pulse's start (ms)")
         ax.set_ylabel("coil current magnitude (A)")
         ax.legend(fontsize=7)

@@ -44,10 +44,22 @@ def latch_table(d: LatchDesign) -> Table:
             t.add_row("  armature open", f"{p.open_time_s * 1e3:.4g} ms",
                       escape("latest, from the reset pulse's start: the catch trips at "
                              f"{p.current_a:.4g} A, spring and load carry the armature to the open stop"))
+        if p.boost is not None:
+            b = p.boost
+            t.add_row("  from the boost", f"{b.threshold_a:.4g} A",
+                      escape(f"threshold code {b.threshold_code} (trips by {b.trip_max_a:.4g} A), seen within a tick; "
+                             f"fastest {b.fastest_time_s * 1e3:.4g} ms ({b.fastest_corner}), time-out "
+                             f"{b.timeout_ticks} ticks; the capacitor falls to {b.lowest_boost_v:.4g} V "
+                             f"({b.lowest_boost_corner}); up to {b.end_current_max_a:.4g} A at the turn-off"
+                             + (f"; recharged in {b.recharge_time_s * 1e3:.4g} ms at {b.power_w:g} W"
+                                if b.recharge_time_s is not None else "")) if b.timeout_ticks else
+                      escape(f"threshold code {b.threshold_code}"))
+        source = "the boost" if p.boost is not None else "the supply"
         t.add_row(f"  energy per {p.name} pulse", f"{p.supply_j * 1e3:.4g} mJ",
-                  escape(f"from the supply ({p.energy_corner}): copper {p.copper_j * 1e3:.4g} mJ, switches + "
+                  escape(f"from {source} ({p.energy_corner}): copper {p.copper_j * 1e3:.4g} mJ, switches + "
                          f"sense {p.switch_sense_j * 1e3:.4g} mJ, freewheel path {p.freewheel_j * 1e3:.4g} mJ, "
-                         f"back to the bus {p.returned_j * 1e3:.4g} mJ"
+                         + (f"boost path {p.boost_j * 1e3:.4g} mJ" if p.boost is not None else
+                            f"back to the bus {p.returned_j * 1e3:.4g} mJ")
                          + (f", the armature {p.armature_j * 1e3:.4g} mJ" if p.armature_j else "")
                          + (f", the eddy currents {p.eddy_j * 1e3:.4g} mJ" if p.eddy_j else "")
                          + f"; in the field at its end {p.stored_j * 1e3:.4g} mJ"))
@@ -60,7 +72,8 @@ def latch_table(d: LatchDesign) -> Table:
               escape(f"{r.interval_ticks} ticks, start to start ({r.governed_by}); decay "
                      f"{r.decay_interval_s * 1e3:.4g} ms, coil temperature {r.thermal_interval_s * 1e3:.4g} ms, "
                      f"recharge {r.recharge_interval_s * 1e3:.4g} ms"
-                     + (f", armature {r.armature_interval_s * 1e3:.4g} ms" if r.armature_interval_s else "")))
+                     + (f", armature {r.armature_interval_s * 1e3:.4g} ms" if r.armature_interval_s else "")
+                     + (f", boost recharge {r.boost_interval_s * 1e3:.4g} ms" if r.boost_interval_s else "")))
     if r.cycle is not None:
         c = r.cycle
         t.add_row("on/off cycle", f"{c.actuation_rate_hz:.4g} /s",

@@ -1060,8 +1060,9 @@ def _refuse(system: System, ch) -> None:
     one line: a curve with a moving armature (the closing armature's current is not proved
     to stay under the open curve's rise, docs/design-method.md, "A flux-linkage curve"), a
     boosted peak with an eddy term or a bouncing armature (``restitution``: a rebound's
-    motional term drives the current past the boost's rise, :func:`_boost_keys`), and a
-    boosted peak without ``supply.boost_efficiency`` (its converter's draw)."""
+    motional term drives the current past the boost's rise, :func:`_boost_keys`), a latching
+    coil's pulses from the boost, and a boosted peak without ``supply.boost_efficiency`` (its
+    converter's draw)."""
     d = ch.drive
     why = None
     if d.coil.flux_current and d.armature is not None:
@@ -1071,6 +1072,8 @@ def _refuse(system: System, ch) -> None:
     elif d.supply.boosted and d.armature is not None and d.armature.restitution > 0:
         key, why = "armature.restitution", ("a boosted peak with a bouncing armature (a rebound drives the "
                                             "current past the boost's rise the rail's bound takes)")
+    elif d.supply.boosted and d.latch is not None:
+        key, why = "supply.boost", "a latching coil's pulses from the boost (their rail-current bound)"
     elif d.supply.boosted and not d.supply.boost_efficiency > 0:
         raise InputError(d.source, "supply.boost_efficiency", f"missing: channel {ch.name!r} of {system.source} "
                          "has a boosted peak, whose converter draws from the shared rail, expected its efficiency "
@@ -1079,8 +1082,8 @@ def _refuse(system: System, ch) -> None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
                          "in a system yet; expected a linear coil (with an [armature], an eddy term or both) "
                          "or a flux-linkage curve (no [armature]), one switch or a full bridge and a voltage-mode "
-                         "fixed, supply-table, closed-loop or current-mode hold, or a latching coil; a boosted "
-                         "peak without an eddy term or a bouncing armature")
+                         "fixed, supply-table, closed-loop or current-mode hold, or a latching coil (not from a "
+                         "boost); a boosted peak without an eddy term or a bouncing armature")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:

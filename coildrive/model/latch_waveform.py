@@ -21,6 +21,13 @@ source resistance, which rises as it does (:func:`fast_decay_after`, :func:`fast
 per winding; the windings' magnetic coupling is not modelled (each decays through its own
 freewheel path).
 
+From the boost (``[supply] boost``, two windings): each pulse's on-time is the boost
+capacitor's series RLC discharge into the winding (:mod:`coildrive.model.boost`, at its
+nominal charge and capacitance), the top of the coil the capacitor less ``R_b i``; after
+the pulse the winding's freewheel path returns its current to the top, which the main
+supply holds (the boost switch is off). A ``boost_v`` column is the capacitor through
+both pulses, recharged at ``boost_power`` after each.
+
 Units: s, A, V.
 """
 
@@ -32,6 +39,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..config import Drive
+from . import boost as boost_model
 from . import bus_decay, eddy, flux_bus
 from . import supply as bus_model
 from .eddy import EddyCoil
@@ -87,6 +95,10 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
     gap_on = None
     if drive.armature is not None:   # the set pulse moves the armature (a drooping bus: a state of its run)
         t_on, i_on, gap_on, bus = _seating(drive, lp, l_factor, t_pulse, points, supply, coil_temp)
+    elif drive.supply.boosted:   # from the boost capacitor (config: a linear coil, no eddy term)
+        b = boost_of(drive, r_on, ind)
+        i_on, v_c = boost_model.state(t_on, b)
+        bus = v_c - drive.supply.boost_resistance * i_on   # the top of the coil
     elif drive.supply.droops:
         s = drive.supply
         mag = ind.magnetising if r_e is not None else ind
@@ -145,6 +157,27 @@ def fast_trace(drive: Drive, rel, i0: float, v0: float, t):
     return bus_decay.trace(t, *_fast_args(drive, rel, i0, v0), sink=drive.supply.sink)
 
 
+def boost_of(drive: Drive, r_on: float, inductance: float) -> boost_model.Boost:
+    """The boost at its nominal charge and capacitance feeding the winding's on-loop
+    ``r_on`` ohm (the boost path's own resistance added) and ``inductance`` H."""
+    s = drive.supply
+    return boost_model.boost(s.boost, s.boost_capacitance, r_on + s.boost_resistance, inductance)
+
+
+def _boost_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float, r_factor: float,
+                  l_factor: float, time, set_time: float, reset_time: float, gap: float) -> np.ndarray:
+    """The boost capacitor (V) through both pulses: each pulse draws it down from full
+    charge, then the converter recharges it at ``boost_power``
+    (:func:`coildrive.model.boost.voltage_trace`); the reset pulse starts from full charge
+    (the interval includes the recharge)."""
+    out = []
+    for wd, start, length, part in ((drive, 0.0, set_time, time < gap), (reset_drive, gap, reset_time, time >= gap)):
+        lp = loop(wd, supply, coil_temp, r_factor, l_factor)
+        b = boost_of(wd, float(lp.r_on), float(lp.inductance))
+        out.append(np.where(part, boost_model.voltage_trace(time - start, length, b, wd.supply.boost_power), 0.0))
+    return out[0] + out[1]
+
+
 def _seating(drive: Drive, lp, l_factor: float, t_pulse: float, points: int, supply: float,
              coil_temp: float):
     """The set pulse with a moving armature (:func:`coildrive.model.armature_sim.simulate`
@@ -198,6 +231,9 @@ def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: 
                                               else np.concatenate([other, idle_sw, v_sw]))
         cols = {k: cols[k] for k in ("time_s", "current_a", "reset_current_a", "coil_voltage_v",
                                      "reset_coil_voltage_v", "switch_voltage_v", "reset_switch_voltage_v")}
+    if drive.supply.boosted:
+        cols["boost_v"] = _boost_column(drive, reset_drive, supply, coil_temp, r_factor, l_factor, time,
+                                        set_time, reset_time, gap)
     gap_all = (None if gap_s is None else
                np.concatenate([gap_s, np.zeros(n_i), np.full(tr.size, np.nan)]))
     return LatchWaveform(cols, events, gap_all)

@@ -9,7 +9,8 @@
  *   c tick <cycles>
  * The scenario (scenario.h, written by the test) is a list of {op, argument} pairs: set,
  * reset and stop call the driver's commands, run <n> runs n ticks (tick numbers from 0),
- * supply <code> gives a supply-compensated driver its reading.
+ * supply <code> gives a supply-compensated driver its reading, current <code> a boosted
+ * driver its current-sense reading.
  */
 #include <stdint.h>
 #include "coil_driver.h"
@@ -22,6 +23,7 @@
 #define OP_STOP 3u
 #define OP_RUN 4u
 #define OP_SUPPLY 5u
+#define OP_CURRENT 6u
 
 static uint32_t now_tick;
 
@@ -50,6 +52,10 @@ int main(void)
             coil_reset();
         } else if (op == OP_STOP) {
             coil_stop();
+        } else if (op == OP_CURRENT) {
+#ifdef COIL_LATCH_BOOSTED
+            coil_current((uint16_t)arg);  /* the current-sense reading (a 12-bit ADC's code) */
+#endif
         } else if (op == OP_SUPPLY) {
 #ifdef COIL_PULSE_COMPENSATED
             coil_supply((uint16_t)arg);   /* the supply-sense reading (a 12-bit ADC's code) */

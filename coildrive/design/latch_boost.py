@@ -1,0 +1,152 @@
+"""A latching coil's pulses from the boost (``[hold] mode = "latch"`` with ``[supply] boost``).
+
+Each pulse -- the set pulse through the set winding, the reset pulse through the reset
+winding -- runs from the boost capacitor (the boost switch and the winding's own switch
+on) until the current-sense ADC reads its threshold code, with a time-out, exactly as a
+boosted peak does (:mod:`coildrive.design.boost`, physics :mod:`coildrive.model.boost`):
+
+* the threshold is ``current_margin`` x the pulse's current (``[pull_in]`` for the set
+  pulse, ``[reset]`` for the reset pulse), its code the smallest one every sense chain
+  reaches only at or above it (:func:`coildrive.design.boost.threshold`);
+* the driver compares the sense reading with the code once a scheduler tick, so it sees
+  the crossing up to one tick (:func:`late`) late: the highest end current, the energy
+  and the decay take it;
+* the slow side (the longest pulse, the time-out = the worst x ``margin`` in ticks + 1,
+  the capacitor's droop against the main supply) is the boost less its tolerances, the
+  fast side (the highest end current, the energy, the switch voltage) at its highest, at
+  every corner of the pulses (:func:`coildrive.design.latch._points`);
+* the winding's freewheel path takes the current to zero after the turn-off, whichever
+  rail fed it; the switch sees the boost at full charge plus the freewheel voltage.
+
+Energy per pulse (the corner and side where the boost gives the most): from zero current
+back to zero the capacitor's ``1/2 C (V_b^2 - v_C^2)`` is exactly what the loop takes::
+
+    E_boost = R_coil (S_on + S_d) + R_switch S_on + R_sense (S_on [+ S_d]) + R_b S_on + E_freewheel
+
+(``S``: ``int i^2 dt`` over the on-time, in closed form by
+:func:`coildrive.model.boost.square_integral`, and over the decay; ``R_b`` the boost
+path's own resistance, ``boost_j``). The boost's recharge of the larger pulse's energy at
+``boost_power`` enters the shortest interval between pulses.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from ..config import Drive
+from ..model import boost as model
+from ..model.circuit import freewheel_element_energy, loop
+from ..model.rl import decay_integrals, decay_time
+from . import boost
+from .result import BoostResult, Check
+
+
+def late(drive: Drive) -> float:
+    """How late (s) the latch driver may see a pulse's threshold: one scheduler tick (it
+    compares the sense reading with the code once a tick)."""
+    return 1.0 / drive.board.tick.rate
+
+
+def pulse_figures(wd: Drive, lp, rel, supply, label, current: float, current_margin: float,
+                  margin: float) -> BoostResult:
+    """The pulse's boost figures (:func:`coildrive.design.boost.boost_figures`) at the
+    points of ``lp`` (the winding ``wd``'s loop), ending at ``current_margin`` x
+    ``current`` A, the time-out the slowest x ``margin``."""
+    return boost.boost_figures(wd, lp, rel, supply, label, wd.board.tick.rate,
+                               boost.threshold(wd, current_margin * current), late(wd), margin)
+
+
+def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult) -> dict:
+    """One pulse's energies at the corner and side where the boost gives the most (the
+    module docstring's balance; J): ``supply_j`` (from the boost), ``copper_j``,
+    ``switch_sense_j``, ``boost_j`` (the boost path's ``R_b``), ``freewheel_j``,
+    ``stored_j`` (``1/2 L I^2`` at the turn-off), and ``k`` the point, ``high`` the side;
+    ``decay_time_s`` the longest time to zero after a pulse and ``end_current_a`` the
+    highest current it turns off (over both sides)."""
+    trip = b.trip_max_a
+    best, t_zero_max, i_max = None, 0.0, 0.0
+    for high in (False, True):
+        bb = boost.boost_side(wd, lp, lp.inductance, high)
+        m = model.of(bb)
+        t = m.threshold_time(trip, bb, sensed=True) + late(wd)
+        t = np.where(np.isfinite(t), t, 0.0)   # never reached: no pulse there (the check fails)
+        i_top = m.state(t, bb)[0]
+        s_on = m.square_integral(t, bb)
+        drawn = m.energy_drawn(t, bb)
+        t_zero = decay_time(0.0, i_top, rel.r_off, rel.v_off, lp.inductance)
+        q_d, s_d = decay_integrals(t_zero, i_top, rel.r_off, rel.v_off, lp.inductance)
+        sense = wd.board.sense
+        r_sense = sense.resistance * sense_factor
+        parts = {"supply_j": drawn, "copper_j": lp.r_coil * (s_on + s_d),
+                 "switch_sense_j": wd.switch.on_resistance * s_on
+                 + r_sense * (s_on + (s_d if sense.position == "coil" else 0.0)),
+                 "boost_j": wd.supply.boost_resistance * s_on,
+                 "freewheel_j": freewheel_element_energy(wd, rel, q_d, s_d),
+                 "stored_j": 0.5 * lp.inductance * i_top**2}
+        k = int(np.argmax(drawn))
+        if best is None or float(drawn[k]) > best["supply_j"]:
+            best = {name: float(np.broadcast_to(v, np.shape(drawn))[k]) for name, v in parts.items()}
+            best.update(k=k, high=high)
+        t_zero_max = max(t_zero_max, float(np.max(t_zero)))
+        i_max = max(i_max, float(np.max(i_top)))
+    return {**best, "decay_time_s": t_zero_max, "end_current_a": i_max}
+
+
+def checks(name: str, b: BoostResult, wd: Drive) -> list[Check]:
+    """The pulse's threshold (reached at every corner, its code within the ADC: the
+    ``{name}_pulse`` check) and the boost capacitor above the main supply until it
+    (``{name}_boost_droop``), worded as the boosted peak's
+    (:func:`coildrive.design.boost.boost_checks`)."""
+    rename = {"boost_threshold": f"{name}_pulse", "boost_droop": f"{name}_boost_droop"}
+    return [Check(rename[c.name], c.ok, f"the {name} pulse from the boost: "
+                  + c.detail.replace("the end of the peak", "the end of the pulse"))
+            for c in boost.boost_checks(wd, b) if c.name in rename]
+
+
+def firmware_time(wd: Drive, b: BoostResult, supply: float, coil_temp: float, r_factor: float = 1.0,
+                  l_factor: float = 1.0) -> float:
+    """The pulse the firmware runs at one point (s): from the boost at its nominal voltage
+    and capacitance until a nominal sense chain reads the threshold code at a tick (the
+    driver compares once a tick, from the tick after the pulse's start), or the time-out
+    if sooner (as :func:`coildrive.design.boost.firmware_peak` for the peak). A design
+    whose threshold is never reached has no time-out: then until the current's first
+    maximum (an ideal boost's: five time constants), to show how far short it falls."""
+    s = wd.supply
+    lp = loop(wd, supply, coil_temp, r_factor, l_factor)
+    bb = boost.at_boost(wd, s.boost, s.boost_capacitance, lp.r_on, lp.inductance)
+    m = model.of(bb)
+    t = float(m.threshold_time(boost.nominal_trip(wd, b.threshold_code), bb, sensed=True))
+    rate = wd.board.tick.rate
+    # the driver compares at each tick after the pulse's first: at the first at or after the crossing
+    t = max(math.ceil(t * rate - 1e-9), 1) / rate if math.isfinite(t) else t
+    if b.timeout_s is None:
+        top = float(m.peak_time(bb))
+        return min(t, top if np.isfinite(top) else 5.0 * float(bb.l / bb.r))
+    return min(t, b.timeout_s)
+
+
+def sample_figures(wd: Drive, lp, rel, sense_factor, b: BoostResult, current: float, v_factor, c_factor) -> tuple:
+    """A Monte Carlo's figures of one pulse from the boost at the points of ``lp`` (the
+    winding ``wd``'s loop; :mod:`coildrive.design.latch_montecarlo`): the boost's charge x
+    ``v_factor`` and capacitance x ``c_factor``, the sense resistor x ``sense_factor``, the
+    amplifier nominal. ``(time to current s, end current A, energy from the boost J, time
+    to zero s, timed out)``: the shortest pulse ends where the sample's chain reads the
+    threshold code (its end current that code's true current; the current at the time-out
+    where that comes first), the longest one tick later (its energy and decay)."""
+    s, board = wd.supply, wd.board
+    bb = boost.at_boost(wd, s.boost * np.asarray(v_factor, float), s.boost_capacitance * np.asarray(c_factor, float),
+                        lp.r_on, lp.inductance)
+    m = model.of(bb)
+    lsb = board.adc.reference / 2**board.adc.bits
+    trip = b.threshold_code * lsb / (board.sense.resistance * np.asarray(sense_factor, float) * board.sense.gain)
+    t_trip = m.threshold_time(trip, bb, sensed=True)
+    timeout = b.timeout_s or 0.0
+    out = t_trip > timeout
+    end = np.where(out, m.state(np.minimum(t_trip, timeout), bb)[0], trip)
+    t_long = np.minimum(t_trip + late(wd), timeout)
+    i_top = m.state(t_long, bb)[0]
+    return (m.threshold_time(current, bb), end, m.energy_drawn(t_long, bb),
+            decay_time(0.0, i_top, rel.r_off, rel.v_off, lp.inductance), out)
+
