@@ -225,7 +225,7 @@ def handover_magnetising(drive: Drive, lp, t_hand) -> tuple[np.ndarray, np.ndarr
     the state behind the terminal current the sense reads, without one that current
     itself -- and where it is known (``False`` where the boost never got to a trip or a
     first maximum: :func:`handover` puts 0 s there)."""
-    b = _boost(drive, lp, lp.inductance, True)
+    b = boost_side(drive, lp, lp.inductance, True)
     t = np.broadcast_to(np.asarray(t_hand, float), np.shape(lp.v_on))
     known = t > 0
     i_m = model.of(b).state(np.where(known, t, 0.0), b)[0]
