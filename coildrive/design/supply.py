@@ -206,6 +206,27 @@ def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.nd
     return np.where(tail, floor, v_low), t_hand + np.where(tail, 0.0, when), i_hand, HANDOVER_PWM
 
 
+def _after_peak_top(drive: Drive, res, i_end, i_m_end, duty) -> np.ndarray:
+    """The most current (A) the coil draws from the drooping bus after the peak when a
+    clamp across the switch carries its off-times (the floor of :func:`supply_result`):
+    the largest of the terminal current ``i_end`` A at the end of the peak, the
+    magnetising current ``i_m_end`` A there (with an eddy term a clamp's off-times draw
+    ``(V_bus - V_clamp + R_e i_m)/(R_off + R_e)``, less than it), the hold's top (terminal
+    and magnetising) and -- under a fixed duty -- the first on-time of the hold from
+    ``i_m_end`` on a stiff bus at ``V_s`` (:func:`_first_on_top`: the bus recovers in the
+    off-times, so an on-time's terminal current ``(v + R_e i_m)/(R + R_e)``, and a peak that
+    ended still rising, go past the peak's own end; every later period's top lies below the
+    first one's or the orbit's, the argument given there). A hold that regulates its
+    current (current mode, closed loop) switches on the current, not a fixed duty: its
+    draw is taken at the peak's end and the hold's top."""
+    top = getattr(res.hold, "terminal_max", None)
+    top = res.hold.i_max if top is None else np.maximum(top, res.hold.i_max)
+    top = np.maximum(np.maximum(i_end, i_m_end), top)
+    if _pwm_hold(drive):
+        top = np.maximum(top, _first_on_top(drive, res.loop, i_m_end, duty, res.hold.period))
+    return top
+
+
 def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_code: int,
                   bridge_bus: dict | None = None) -> SupplyResult | None:
     """The supply's figures over the points of ``res`` (the longest peak ``peak_time`` s and
@@ -216,8 +237,8 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
 
     With a clamp across the switch (:func:`through_clamp`) the coil keeps drawing from the
     bus after the peak: the lowest bus is also taken at the floor
-    :func:`~coildrive.model.supply.bus_floor` of the current after the peak (the end of the
-    peak's, or the hold's top if higher), and without split decay the hold's off-times draw
+    :func:`~coildrive.model.supply.bus_floor` of the most current after the peak
+    (:func:`_after_peak_top`: the peak's end, the hold's first on-time, the hold's top), and without split decay the hold's off-times draw
     from the bus too (the hold's bus sits ``R_s`` x the mean low; the capacitor carries the
     coil's ripple). ``bridge_bus``: a full bridge's highest bus
     (:func:`coildrive.design.bridge_bus.bridge_release`).
@@ -230,8 +251,6 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
         return None
     lp = res.loop
     peak = np.broadcast_to(peak_time, lp.v_on.shape)
-    top = getattr(res.hold, "terminal_max", None)
-    top = res.hold.i_max if top is None else top
     handover = method = None
     if s.boosted:
         v_low, when, handover, method = handover_bus(drive, res, duty)
@@ -247,9 +266,11 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
     clamp = through_clamp(drive)
     if clamp and not s.boosted:     # (after a boost, handover_bus takes the floor itself)
         if res.armature is None:
-            i_end, v_end = model.state(peak, b)
-            i_end = bus_model.terminal(i_end, v_end, b)
-        i_top = np.maximum(i_end, top)
+            i_m_end, v_end = model.state(peak, b)
+            i_end = bus_model.terminal(i_m_end, v_end, b)
+        else:
+            i_m_end = i_end
+        i_top = _after_peak_top(drive, res, i_end, i_m_end, duty)
         floor = bus_model.bus_floor(lp.v_on, s.source_resistance, i_top)
         later = floor < v_low
         v_low, when = np.where(later, floor, v_low), np.where(later, peak, when)
