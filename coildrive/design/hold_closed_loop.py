@@ -263,7 +263,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     if thermal is not None and thermal.cycle is not None:
         notes[2] = cycle_caution(thermal)   # the envelope's hot coil is the cycle's
     notes += thermal_cautions(thermal)
-    sup = drooping_bus(drive, env, res, long_, run_high, thresholds, bridge_bus)
+    sup = drooping_bus(drive, env, res, long_, run_high, thresholds, bridge_bus, preload / period)
     checks += supply_checks(sup) + bridge_bus_checks(drive, sup)
     boost, boost_rows, boost_notes = boost_outputs(drive, env, res_low, board.tick.rate)
     checks += boost_rows

@@ -206,7 +206,7 @@ def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.nd
     return np.where(tail, floor, v_low), t_hand + np.where(tail, 0.0, when), i_hand, HANDOVER_PWM
 
 
-def _after_peak_top(drive: Drive, res, i_end, i_m_end, duty) -> np.ndarray:
+def _after_peak_top(drive: Drive, res, i_end, i_m_end, duty, first_duty=None) -> np.ndarray:
     """The most current (A) the coil draws from the drooping bus after the peak when a
     clamp across the switch carries its off-times (the floor of :func:`supply_result`):
     the largest of the terminal current ``i_end`` A at the end of the peak, the
@@ -216,19 +216,24 @@ def _after_peak_top(drive: Drive, res, i_end, i_m_end, duty) -> np.ndarray:
     ``i_m_end`` on a stiff bus at ``V_s`` (:func:`_first_on_top`: the bus recovers in the
     off-times, so an on-time's terminal current ``(v + R_e i_m)/(R + R_e)``, and a peak that
     ended still rising, go past the peak's own end; every later period's top lies below the
-    first one's or the orbit's, the argument given there). A hold that regulates its
-    current (current mode, closed loop) switches on the current, not a fixed duty: its
-    draw is taken at the peak's end and the hold's top."""
+    first one's or the orbit's, the argument given there). A closed loop (``first_duty``:
+    the duty its hold starts from, the most it settles at anywhere) runs its first period
+    at that duty and lowers it while its sample stays above the set-point (the PI's
+    proportional and integral terms both fall with a negative error), so its on-times
+    till then lie under the first one at that duty and after it at the hold's top. A
+    current-mode hold stays off until the current falls into its band: its draw is taken
+    at the peak's end and the hold's top."""
     top = getattr(res.hold, "terminal_max", None)
     top = res.hold.i_max if top is None else np.maximum(top, res.hold.i_max)
     top = np.maximum(np.maximum(i_end, i_m_end), top)
-    if _pwm_hold(drive):
-        top = np.maximum(top, _first_on_top(drive, res.loop, i_m_end, duty, res.hold.period))
+    if _pwm_hold(drive) or first_duty is not None:
+        top = np.maximum(top, _first_on_top(drive, res.loop, i_m_end, duty if first_duty is None else first_duty,
+                                            res.hold.period))
     return top
 
 
 def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_code: int,
-                  bridge_bus: dict | None = None) -> SupplyResult | None:
+                  bridge_bus: dict | None = None, first_duty=None) -> SupplyResult | None:
     """The supply's figures over the points of ``res`` (the longest peak ``peak_time`` s and
     the hold duty ``duty`` at each point): the lowest bus during the peak and its corner,
     the energy the capacitor gives up down to it, the capacitor's RMS ripple current in the
@@ -241,7 +246,8 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
     (:func:`_after_peak_top`: the peak's end, the hold's first on-time, the hold's top), and without split decay the hold's off-times draw
     from the bus too (the hold's bus sits ``R_s`` x the mean low; the capacitor carries the
     coil's ripple). ``bridge_bus``: a full bridge's highest bus
-    (:func:`coildrive.design.bridge_bus.bridge_release`).
+    (:func:`coildrive.design.bridge_bus.bridge_release`); ``first_duty``: a closed loop's
+    duty at the start of its hold (:func:`_after_peak_top`).
 
     With a moving armature the lowest bus is the pull-in run's
     (:func:`coildrive.model.armature_runs.pull_in` on the drooping bus, to the end of the
@@ -270,7 +276,7 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
             i_end = bus_model.terminal(i_m_end, v_end, b)
         else:
             i_m_end = i_end
-        i_top = _after_peak_top(drive, res, i_end, i_m_end, duty)
+        i_top = _after_peak_top(drive, res, i_end, i_m_end, duty, first_duty)
         floor = bus_model.bus_floor(lp.v_on, s.source_resistance, i_top)
         later = floor < v_low
         v_low, when = np.where(later, floor, v_low), np.where(later, peak, when)
