@@ -145,7 +145,7 @@ def _first_on_top(drive: Drive, lp, i_m, duty, period) -> np.ndarray:
     return top
 
 
-def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.ndarray, str]:
+def handover_bus(drive: Drive, res, duty, first_duty=None) -> tuple[np.ndarray, np.ndarray, np.ndarray, str]:
     """``(lowest bus V, when s after switch-on, hand-over current A, method)`` of a boosted
     peak on a drooping main supply at the points of ``res`` (the most current): the peak
     runs from the boost while the main supply's diode blocks, so the main bus sits at the
@@ -167,8 +167,9 @@ def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.nd
     draw from the bus too) take the floor of the bus instead
     (:func:`coildrive.model.supply.bus_floor` with the coil at most the largest of the
     hand-over current, the hold's top and -- under a fixed duty -- the first on-time from
-    the hand-over, :func:`_first_on_top`; plus the converter): a bound, lower than the bus
-    goes. A flux-linkage curve under a fixed duty (an on-time on the bus has no closed
+    the hand-over, :func:`_first_on_top`, a closed loop's at ``first_duty``, the duty its
+    hold starts from, as :func:`_after_peak_top` says; plus the converter): a bound, lower
+    than the bus goes. A flux-linkage curve under a fixed duty (an on-time on the bus has no closed
     form: stepping the thousands of them to the orbit is the cost this avoids) takes the
     tighter floor of that most current drawn in the on-times only
     (:func:`coildrive.model.supply.pulse_floor`, the converter's constant draw lowering its
@@ -183,8 +184,9 @@ def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.nd
     top = np.maximum(i_hand, res.hold.i_max if top is None else np.maximum(top, res.hold.i_max))
     top = np.where(np.isfinite(top), top, i_hand)
     pwm = _pwm_hold(drive)
-    if pwm:
-        top = np.maximum(top, _first_on_top(drive, lp, np.where(known, i_m, i_hand), duty, res.hold.period))
+    if pwm or first_duty is not None:
+        top = np.maximum(top, _first_on_top(drive, lp, np.where(known, i_m, i_hand),
+                                            duty if first_duty is None else first_duty, res.hold.period))
     i_conv = converter_current(drive, lp.v_on, top)
     floor = bus_model.bus_floor(lp.v_on, s.source_resistance, top + i_conv)
     ind, r_e = lp.inductance, None
@@ -259,7 +261,7 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
     peak = np.broadcast_to(peak_time, lp.v_on.shape)
     handover = method = None
     if s.boosted:
-        v_low, when, handover, method = handover_bus(drive, res, duty)
+        v_low, when, handover, method = handover_bus(drive, res, duty, first_duty)
     elif res.armature is not None:
         pin = res.armature.pull_in
         v_low = np.asarray(pin.lowest_bus, float).reshape(lp.v_on.shape)
