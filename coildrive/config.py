@@ -1592,8 +1592,8 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
                   supply: Supply, hold: Hold, coil: Coil) -> None:
     """What a full bridge needs: its freewheel path is its switches' body diodes (type
     "diode", no split decay: the bridge decays slowly and fast by itself), mixed decay only
-    under a fixed, supply-table or closed-loop hold (a current-mode hold decays slowly; a
-    closed loop's mixed decay on a linear coil only),
+    under a fixed, supply-table or closed-loop hold (a current-mode hold decays slowly: a
+    fast part in its off-times, off-time or hysteretic, is not modelled),
     and with a supply that cannot sink the returned
     energy, the bulk capacitance. (The supply's ``sink`` and
     ``capacitance`` keys mean nothing to the other topologies, which return no energy.)"""
@@ -1615,14 +1615,9 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
     if hold.regulation == "current" and hold.fast_fraction > 0:
         raise InputError(source, "hold.fast_fraction", f"{hold.fast_fraction:g} with hold.mode = "
                          "\"current\": a full bridge's current-mode hold decays slowly (the two "
-                         "low-side switches), expected 0 or the key left out (mixed decay: a fixed, "
-                         "supply-table or closed-loop hold)")
-    if (hold.regulation == "closed_loop" and hold.fast_fraction > 0
-            and (coil.eddy_resistance or coil.flux_current)):
-        raise InputError(source, "hold.fast_fraction", f"{hold.fast_fraction:g} with regulation = "
-                         "\"closed_loop\" on a coil with an eddy term or a flux-linkage curve: the "
-                         "loop's mixed-decay sample is modelled for a linear coil only, expected 0 or "
-                         "the key left out (or a linear coil)")
+                         "low-side switches; a fast part in its off-times is not modelled), expected "
+                         "0 or the key left out (mixed decay: a fixed, supply-table or closed-loop "
+                         "hold)")
     if not supply.sink and not supply.capacitance > 0:
         raise InputError(source, "supply.capacitance", "missing: with sink = false the returned "
                          "energy lands on the bulk capacitance, expected its value (e.g. \"470 uF\")")

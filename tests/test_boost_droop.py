@@ -264,3 +264,37 @@ def test_a_passing_drooping_drive_runs_in_the_loop(tmp_path, eddy):
     assert d.ok and {c.name: c for c in d.checks}["supply_droop"].ok
     emulated_check_passes(tmp_path, path)
     assert "coil_port_boost" in driver_runs_to_threshold(tmp_path, path)
+
+
+def test_closed_loop_first_on_time_against_scipy(tmp_path):
+    """A closed loop starts its hold at its preload duty (the most it settles at anywhere)
+    and lowers it while above its set-point: its first on-time from the hand-over rises
+    past the hand-over current where that lies below ``V_s/R``. scipy's ``solve_ivp``
+    (Radau) of that on-time written afresh at the lowest-bus corner (``L di/dt = v - R_on
+    i``, ``C dv/dt = (V_s - v)/R_s - i - I_conv``, from the hand-over current and the bus at
+    ``V_s``): the coil draws more than the hand-over current, and the design's floor lies
+    under ``V_s - R_s (i + I_conv)`` at that most current (I_conv hand-worked: the
+    quadratic's larger root)."""
+    from scipy.integrate import solve_ivp
+
+    from coildrive.config import load_drive
+    from coildrive.design import design
+    from coildrive.model.circuit import loop
+
+    d = design(load_drive(_droop(tmp_path, "cl", ('frequency = ', 'regulation = "closed_loop"\nfrequency = '))))
+    s = d.supply
+    assert s.lowest_bus_corner == "9 V, -40 degC, coil -40 degC (cold), R-5%, L-10%"
+    lp = loop(d.drive, 9.0, -40.0, 0.95, 0.9)
+    r_on, ell = float(lp.r_on), float(lp.inductance)
+    i0 = s.handover_current_a
+    t_on = d.hold.closed_loop.preload_compare / d.timer.period_ticks / d.hold.frequency_hz
+    head = 9.0 - R_S * i0
+    i_conv = 5.0 / (0.5 * (head + np.sqrt(head**2 - 4 * R_S * 5.0)))
+    sol = solve_ivp(lambda t, y: [(y[1] - r_on * y[0]) / ell, ((9.0 - y[1]) / R_S - y[0] - i_conv) / C_BUS],
+                    (0.0, t_on), [i0, 9.0], method="Radau", rtol=1e-10, atol=1e-13)
+    most = float(sol.y[0].max())
+    head = 9.0 - R_S * most
+    i_conv = 5.0 / (0.5 * (head + np.sqrt(head**2 - 4 * R_S * 5.0)))
+    # scipy: the first on-time draws past the hand-over current; the floor covers it
+    assert most > i0 + 1e-3, (most, i0)
+    assert s.lowest_bus_v <= 9.0 - R_S * (most + i_conv) + 1e-9, (s.lowest_bus_v, most)

@@ -27,7 +27,6 @@ from test_bridge_current import (bridge_variant, common_return_board, compiled_l
                                  simulated_phases)
 from coildrive.config import load_drive
 from coildrive.design import design
-from coildrive.errors import InputError
 from coildrive.model.circuit import loop
 
 CLOSED = ('frequency = "20 kHz"\n', 'frequency = "20 kHz"\nregulation = "closed_loop"\n')
@@ -217,14 +216,8 @@ def test_compiled_driver_in_the_loop_holds_the_set_point(cl, tmp_path):
 
 
 def test_what_a_closed_loop_bridge_refuses_is_one_line(tmp_path):
-    """Mixed decay under the loop is designed on a linear coil only (tests/
-    test_bridge_closed_loop_mixed.py); the sweep is refused as for one switch."""
-    path = _variant(tmp_path, ('frequency = "20 kHz"\nregulation = "closed_loop"\n',
-                               'frequency = "20 kHz"\nregulation = "closed_loop"\nfast_fraction = 0.3\n'),
-                    ('inductance = "70 mH"', 'inductance = "70 mH"\neddy_resistance = "2 kohm"'))
-    with pytest.raises(InputError) as err:
-        load_drive(path)
-    assert "hold.fast_fraction" in str(err.value) and "linear coil only" in str(err.value)
+    """The sweep is refused as for one switch (mixed decay under the loop, with an eddy
+    term or a curve too: tests/test_bridge_closed_loop_mixed_coils.py)."""
     r = run_cli("tune", str(_variant(tmp_path, name="t.toml")))   # as for one switch
     assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1 and "hold.regulation" in r.stderr
 

@@ -28,7 +28,6 @@ from test_bridge_current import (bridge_variant, common_return_board, compiled_l
                                  simulate_csv)
 from coildrive.config import load_drive
 from coildrive.design import design
-from coildrive.errors import InputError
 from coildrive.model.circuit import loop
 
 FRACTION = 0.3
@@ -216,12 +215,3 @@ def test_compiled_driver_in_the_loop_holds_the_set_point(clm, tmp_path):
     (plumbing: the device shares the design's model)."""
     require_tool("gcc")
     compiled_loop_checks(clm[1], tmp_path, 5e-3)
-
-
-def test_what_stays_refused_is_one_line(tmp_path):
-    """A flux-linkage curve under the loop's mixed decay is refused in one line."""
-    path = _variant(tmp_path, ('inductance = "70 mH"', 'flux_current = [0, 0.5, 1]\n'
-                               'flux_linkage = ["0 mWb", "35 mWb", "60 mWb"]'), name="curve.toml")
-    with pytest.raises(InputError) as err:
-        load_drive(path)
-    assert "hold.fast_fraction" in str(err.value) and "linear coil only" in str(err.value)

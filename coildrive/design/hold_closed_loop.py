@@ -22,11 +22,14 @@ loop sets the next period's compare so that the reading sits at a set-point code
 The peak, the release and every other figure are built as for the voltage-mode hold
 (:mod:`coildrive.design.figures`, :mod:`coildrive.design.checks`).
 
-A full bridge's mixed decay (``hold.fast_fraction``, a linear coil): each off-time the
-loop's compare leaves starts fast for that fraction of it, then decays slowly -- the
-loop's :class:`~coildrive.model.circuit.Loop` carries it, so the sample, the settled
-duty, every steady state and the averaged plant are the three-segment orbit's
-(:mod:`coildrive.design.loop_duty`, :mod:`coildrive.design.loop_gains`).
+A full bridge's mixed decay (``hold.fast_fraction``; a linear coil, an eddy term, a
+flux-linkage curve): each off-time the loop's compare leaves starts fast for that fraction
+of it, then decays slowly -- the loop's :class:`~coildrive.model.circuit.Loop` carries it,
+so the sample, the settled duty, every steady state and the averaged plant are the
+three-segment orbit's (:mod:`coildrive.design.loop_duty`, :mod:`coildrive.design.loop_gains`;
+:mod:`coildrive.model.eddy_mixed`, :mod:`coildrive.model.flux_mixed`). With an eddy term
+the sensed current steps where the fast part ends too: ``loop_sample_edge`` names that
+duty beside 1/2.
 """
 
 from __future__ import annotations
@@ -266,7 +269,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     if thermal is not None and thermal.cycle is not None:
         notes[2] = cycle_caution(thermal)   # the envelope's hot coil is the cycle's
     notes += thermal_cautions(thermal)
-    sup = drooping_bus(drive, env, res, long_, run_high, thresholds, bridge_bus)
+    sup = drooping_bus(drive, env, res, long_, run_high, thresholds, bridge_bus, preload / period)
     checks += supply_checks(sup) + bridge_bus_checks(drive, sup)
     boost, boost_rows, boost_notes = boost_outputs(drive, env, res_low, board.tick.rate)
     checks += boost_rows
@@ -370,14 +373,19 @@ def loop_checks(drive: Drive, r: ClosedLoopResult, adc, period: int) -> list[Che
                                                     " — a gain rounds by more than 1 %: the ADC or "
                                                     "the timer is too coarse for this loop")))
     if drive.coil.eddy_resistance and r.sample_point == "middle of the period":
-        # the sensed current steps at each edge: a duty of 1/2 puts the edge on the sample
-        edge = r.min_duty <= 0.5 <= r.max_duty
+        # the sensed current steps at each edge: a duty of 1/2 puts the edge on the sample;
+        # a mixed-decay hold's fast part ends on it at d + phi (1 - d) = 1/2
+        phi = drive.hold.fast_fraction
+        edges = [0.5] + ([(0.5 - phi) / (1.0 - phi)] if 0 < phi < 0.5 else [])
+        edge = any(r.min_duty <= e <= r.max_duty for e in edges)
+        at = " and ".join(f"{e:.4g}" for e in edges)
         out.append(Check("loop_sample_edge", not edge,
-                         f"settled duties {r.min_duty:.4f}..{r.max_duty:.4f} vs 1/2, where the "
+                         f"settled duties {r.min_duty:.4f}..{r.max_duty:.4f} vs {at}, where a "
                          "switching edge (and the eddy term's step of the sensed current) meets "
                          "the mid-period sample" + (" — at some corner the reading jumps by the "
-                                                    "step as the duty crosses 1/2: move the duties "
-                                                    "off 1/2 (hold.current, supply) or sense under "
+                                                    "step as the duty crosses it: move the duties "
+                                                    "off it (hold.current, supply, "
+                                                    "hold.fast_fraction) or sense under "
                                                     "the switch" if edge else ""),
                          severity="warning"))
     full = 2**drive.board.adc.bits - 1

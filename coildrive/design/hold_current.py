@@ -547,19 +547,21 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
 
 
 def drooping_bus(drive: Drive, grid, res: PointResults, peak_time, duty, thresholds,
-                 bridge_bus: dict | None = None):
+                 bridge_bus: dict | None = None, first_duty=None):
     """The supply's figures (:func:`coildrive.design.supply.supply_result`) of a hold that
     regulates its current: the peak of ``peak_time`` s on the drooping bus at the points of
     ``res``, the hold's switch-on fraction ``duty`` for its capacitor ripple; the firmware
     reads the bus through the board's supply sense as for the voltage-mode hold.
     ``bridge_bus``: a full bridge's highest bus
-    (:func:`coildrive.design.bridge_bus.bridge_release`)."""
+    (:func:`coildrive.design.bridge_bus.bridge_release`); ``first_duty``: a closed loop's
+    duty at the start of its hold."""
     b = drive.board
     sense = b.supply_sense
 
     def read(volts):
         return adc_code(volts / sense.divider, b.adc.reference, b.adc.bits)
-    return supply_result(drive, grid, res, peak_time, duty, read, thresholds.supply_min_code, bridge_bus)
+    return supply_result(drive, grid, res, peak_time, duty, read, thresholds.supply_min_code, bridge_bus,
+                         first_duty)
 
 
 def _bridge_release(drive: Drive, grid: CornerGrid, res: PointResults, cold: PointResults | None,

@@ -40,7 +40,10 @@ def sample_at(duty, frequency: float, lp, switch_leg: bool):
     """``(current at the sampling instant A, the PWM steady state)`` at ``duty``: the middle
     of the on-time (switch leg) or of the period (coil path, the on-time first). A full
     bridge's mixed-decay hold (``lp.mixed``): the off-time decays fast for its fraction of
-    the off-time, then slowly; the mid-period sample may fall in either part."""
+    the off-time, then slowly; the mid-period sample may fall in either part (with an eddy
+    term the terminal current of that part's loop: ``(R_e i_m - V_f)/(R_f + R_e)`` in the
+    fast part, zero once its body diodes block; a curve through its own segment
+    currents)."""
     ss = pwm_steady_state(duty, frequency, lp.v_on, lp.r_on, lp.r_off, lp.v_off, lp.inductance,
                           mixed=lp.mixed)
     t = 1.0 / frequency
@@ -56,21 +59,25 @@ def sample_at(duty, frequency: float, lp, switch_leg: bool):
         top = decay_current(np.minimum(late, t_fast), ss.i_max, lp.mixed.r_fast, lp.mixed.v_fast,
                             lp.inductance)
         off = decay_current(np.maximum(late - t_fast, 0.0), top, lp.r_off, lp.v_off, lp.inductance)
-    else:
-        off = decay_current(late, ss.i_max, lp.r_off, lp.v_off, lp.inductance)
+        fast_sensed = _sensed(lp, lp.mixed.r_fast, lp.mixed.v_fast)[1]
+        return np.where(mid <= t_on, on_sensed(on),
+                        np.where(late <= t_fast, fast_sensed(top), off_sensed(off))), ss
+    off = decay_current(late, ss.i_max, lp.r_off, lp.v_off, lp.inductance)
     return np.where(mid <= t_on, on_sensed(on), off_sensed(off)), ss
 
 
-def _sensed(lp):
+def _sensed(lp, r_off=None, v_off=None):
     """``(on, off)``: the sensed (terminal) current as a function of the state the segment
     functions return -- the current itself, or with an eddy term the magnetising current
     (``i = (v + R_e i_m) / (r + R_e)`` of the conducting loop, zero once the freewheel
-    blocks; :mod:`coildrive.model.eddy`)."""
+    blocks; :mod:`coildrive.model.eddy`). ``r_off``/``v_off``: the off-time's loop, the
+    hold's freewheel path unless given (a bridge's fast part: ``R_f``, ``V_f``)."""
     e = lp.inductance
     if not isinstance(e, EddyCoil):
         return (lambda i: i), (lambda i: i)
+    r_off, v_off = (lp.r_off, lp.v_off) if r_off is None else (r_off, v_off)
     return (lambda m: eddy.terminal(m, lp.v_on, lp.r_on, e.resistance),
-            lambda m: np.maximum(eddy.terminal(m, -lp.v_off, lp.r_off, e.resistance), 0.0))
+            lambda m: np.maximum(eddy.terminal(m, -v_off, r_off, e.resistance), 0.0))
 
 
 def duty_for_sample(target, frequency: float, lp, switch_leg: bool, low: float = 0.0,

@@ -9,7 +9,9 @@ duty drives the current through ``G(s) = V_g / (R_eff + s L)`` with
 freewheel voltage it is the textbook ``V / (R + s L)``). A full bridge's mixed-decay hold
 spends ``phi (1 - d)`` of each period in the fast path (``V_f + R_f i``) and
 ``(1 - phi)(1 - d)`` in the slow one, so its average is the same equation with
-``V_off = phi V_f + (1 - phi) V_slow`` and ``R_off = phi R_f + (1 - phi) R_slow``.
+``V_off = phi V_f + (1 - phi) V_slow`` and ``R_off = phi R_f + (1 - phi) R_slow`` (with
+an eddy term each path's Thevenin pair, below: ``k_f = R_e / (R_f + R_e)`` for the fast
+one, and a mid-period sample in the fast part reads ``k_f di_m``).
 
 A saturating coil (a flux-linkage curve, :mod:`coildrive.model.flux`) obeys the same
 average with ``dpsi/dt = L_d(i) di/dt`` on the left. Linearised at the mean current
@@ -122,10 +124,16 @@ def plant(lp, duty, current, frequency: float, counts: int, codes_per_amp: float
         sensed = k_on if switch_leg else np.where(d >= 0.5, k_on, k_off)
         coil = coil.magnetising
     v_on, r_on, v_off, r_off = k_on * lp.v_on, k_on * lp.r_on, k_off * lp.v_off, k_off * lp.r_off
-    if lp.mixed is not None:   # a bridge's mixed decay (no eddy term: config refuses it)
+    if lp.mixed is not None:   # a bridge's mixed decay: the fast path's (Thevenin) pair
         phi = lp.mixed.fraction
-        v_off = phi * lp.mixed.v_fast + (1.0 - phi) * v_off
-        r_off = phi * lp.mixed.r_fast + (1.0 - phi) * r_off
+        k_fast = 1.0
+        if isinstance(lp.inductance, EddyCoil):
+            k_fast = lp.inductance.resistance / (lp.mixed.r_fast + lp.inductance.resistance)
+            if not switch_leg:   # a mid-period sample in the fast part reads its loop's terminal
+                fast = 0.5 < d + phi * (1.0 - d)
+                sensed = np.where(d >= 0.5, k_on, np.where(fast, k_fast, k_off))
+        v_off = phi * k_fast * lp.mixed.v_fast + (1.0 - phi) * v_off
+        r_off = phi * k_fast * lp.mixed.r_fast + (1.0 - phi) * r_off
     vg = v_on + v_off - (r_on - r_off) * i
     r_eff = d * r_on + (1.0 - d) * r_off
     t = 1.0 / frequency

@@ -162,7 +162,7 @@ def _first_on_top(drive: Drive, lp, i_m, duty, period) -> np.ndarray:
     return top
 
 
-def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.ndarray, str]:
+def handover_bus(drive: Drive, res, duty, first_duty=None) -> tuple[np.ndarray, np.ndarray, np.ndarray, str]:
     """``(lowest bus V, when s after switch-on, hand-over current A, method)`` of a boosted
     peak on a drooping main supply at the points of ``res`` (the most current): the peak
     runs from the boost while the main supply's diode blocks, so the main bus sits at the
@@ -185,8 +185,9 @@ def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.nd
     the bus only higher) take the floor of the bus instead
     (:func:`coildrive.model.supply.bus_floor` with the coil at most the largest of the
     hand-over current, the hold's top and -- under a fixed duty -- the first on-time from
-    the hand-over, :func:`_first_on_top`; plus the converter): a bound, lower than the bus
-    goes. A flux-linkage curve under a fixed duty (an on-time on the bus has no closed
+    the hand-over, :func:`_first_on_top`, a closed loop's at ``first_duty``, the duty its
+    hold starts from, as :func:`_after_peak_top` says; plus the converter): a bound, lower
+    than the bus goes. A flux-linkage curve under a fixed duty (an on-time on the bus has no closed
     form: stepping the thousands of them to the orbit is the cost this avoids) takes the
     tighter floor of that most current drawn in the on-times only
     (:func:`coildrive.model.supply.pulse_floor`, the converter's constant draw lowering its
@@ -213,8 +214,12 @@ def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.nd
     top = np.maximum(i_hand, res.hold.i_max if top is None else np.maximum(top, res.hold.i_max))
     top = np.where(np.isfinite(top), top, i_hand)
     pwm = _pwm_hold(drive)
-    if pwm and runs is None:   # (an armature's runs take the hold's flight on the bus below)
-        top = np.maximum(top, _first_on_top(drive, lp, np.where(known, i_m, i_hand), duty, res.hold.period))
+    if runs is None and (pwm or first_duty is not None):
+        top = np.maximum(top, _first_on_top(drive, lp, np.where(known, i_m, i_hand),
+                                            duty if first_duty is None else first_duty, res.hold.period))
+    elif first_duty is not None:   # (a regulated hold holds an armature seated within the peak:
+        # the seated coil's first on-time from the most current at the hand-over)
+        top = np.maximum(top, _first_on_top(drive, lp, i_hand, first_duty, res.hold.period))
     i_conv = converter_current(drive, lp.v_on, top)
     floor = bus_model.bus_floor(lp.v_on, s.source_resistance, top + i_conv)
     ind, r_e = lp.inductance, None
@@ -240,8 +245,34 @@ def handover_bus(drive: Drive, res, duty) -> tuple[np.ndarray, np.ndarray, np.nd
     return np.where(tail, floor, v_low), t_hand + np.where(tail, 0.0, when), i_hand, HANDOVER_PWM
 
 
+def _after_peak_top(drive: Drive, res, i_end, i_m_end, duty, first_duty=None) -> np.ndarray:
+    """The most current (A) the coil draws from the drooping bus after the peak when a
+    clamp across the switch carries its off-times (the floor of :func:`supply_result`):
+    the largest of the terminal current ``i_end`` A at the end of the peak, the
+    magnetising current ``i_m_end`` A there (with an eddy term a clamp's off-times draw
+    ``(V_bus - V_clamp + R_e i_m)/(R_off + R_e)``, less than it), the hold's top (terminal
+    and magnetising) and -- under a fixed duty -- the first on-time of the hold from
+    ``i_m_end`` on a stiff bus at ``V_s`` (:func:`_first_on_top`: the bus recovers in the
+    off-times, so an on-time's terminal current ``(v + R_e i_m)/(R + R_e)``, and a peak that
+    ended still rising, go past the peak's own end; every later period's top lies below the
+    first one's or the orbit's, the argument given there). A closed loop (``first_duty``:
+    the duty its hold starts from, the most it settles at anywhere) runs its first period
+    at that duty and lowers it while its sample stays above the set-point (the PI's
+    proportional and integral terms both fall with a negative error), so its on-times
+    till then lie under the first one at that duty and after it at the hold's top. A
+    current-mode hold stays off until the current falls into its band: its draw is taken
+    at the peak's end and the hold's top."""
+    top = getattr(res.hold, "terminal_max", None)
+    top = res.hold.i_max if top is None else np.maximum(top, res.hold.i_max)
+    top = np.maximum(np.maximum(i_end, i_m_end), top)
+    if _pwm_hold(drive) or first_duty is not None:
+        top = np.maximum(top, _first_on_top(drive, res.loop, i_m_end, duty if first_duty is None else first_duty,
+                                            res.hold.period))
+    return top
+
+
 def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_code: int,
-                  bridge_bus: dict | None = None) -> SupplyResult | None:
+                  bridge_bus: dict | None = None, first_duty=None) -> SupplyResult | None:
     """The supply's figures over the points of ``res`` (the longest peak ``peak_time`` s and
     the hold duty ``duty`` at each point): the lowest bus during the peak and its corner,
     the energy the capacitor gives up down to it, the capacitor's RMS ripple current in the
@@ -250,11 +281,12 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
 
     With a clamp across the switch (:func:`through_clamp`) the coil keeps drawing from the
     bus after the peak: the lowest bus is also taken at the floor
-    :func:`~coildrive.model.supply.bus_floor` of the current after the peak (the end of the
-    peak's, or the hold's top if higher), and without split decay the hold's off-times draw
+    :func:`~coildrive.model.supply.bus_floor` of the most current after the peak
+    (:func:`_after_peak_top`: the peak's end, the hold's first on-time, the hold's top), and without split decay the hold's off-times draw
     from the bus too (the hold's bus sits ``R_s`` x the mean low; the capacitor carries the
     coil's ripple). ``bridge_bus``: a full bridge's highest bus
-    (:func:`coildrive.design.bridge_bus.bridge_release`).
+    (:func:`coildrive.design.bridge_bus.bridge_release`); ``first_duty``: a closed loop's
+    duty at the start of its hold (:func:`_after_peak_top`).
 
     With a moving armature the lowest bus is the pull-in run's
     (:func:`coildrive.model.armature_runs.pull_in` on the drooping bus, to the end of the
@@ -264,11 +296,9 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
         return None
     lp = res.loop
     peak = np.broadcast_to(peak_time, lp.v_on.shape)
-    top = getattr(res.hold, "terminal_max", None)
-    top = res.hold.i_max if top is None else top
     handover = method = None
     if s.boosted:
-        v_low, when, handover, method = handover_bus(drive, res, duty)
+        v_low, when, handover, method = handover_bus(drive, res, duty, first_duty)
     elif res.armature is not None:
         pin = res.armature.pull_in
         v_low = np.asarray(pin.lowest_bus, float).reshape(lp.v_on.shape)
@@ -281,9 +311,11 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
     clamp = through_clamp(drive)
     if clamp and not s.boosted:     # (after a boost, handover_bus takes the floor itself)
         if res.armature is None:
-            i_end, v_end = model.state(peak, b)
-            i_end = bus_model.terminal(i_end, v_end, b)
-        i_top = np.maximum(i_end, top)
+            i_m_end, v_end = model.state(peak, b)
+            i_end = bus_model.terminal(i_m_end, v_end, b)
+        else:
+            i_m_end = i_end
+        i_top = _after_peak_top(drive, res, i_end, i_m_end, duty, first_duty)
         floor = bus_model.bus_floor(lp.v_on, s.source_resistance, i_top)
         later = floor < v_low
         v_low, when = np.where(later, floor, v_low), np.where(later, peak, when)
