@@ -22,7 +22,8 @@
 * **the heat** in the shared freewheel parts and in the board.
 
 A channel is a linear coil, with a moving armature (:mod:`coildrive.model.armature_bound`),
-an eddy term or both, or a flux-linkage curve (:mod:`coildrive.model.flux_bound`), on one
+an eddy term or both, or a flux-linkage curve (:mod:`coildrive.model.flux_bound`; with a
+moving armature over two curves too, :func:`_gap_rise`), on one
 switch or a full bridge, or a latching coil (its pulses: :func:`_latch_bound_params`), or a
 boosted peak (its converter's draw: :func:`_boost_keys`); what is not is refused in one
 line (:func:`_refuse`). A rail with a curve, an eddy term or a bridge on it takes its droop
@@ -208,7 +209,8 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
     over the orbit's bottom is taken against the lowest bottom in the range (its lowest
     supply and readable duty, the hottest coil of the design's corners). With a moving
     armature the peak's rise is :func:`_armature_rise`'s (the open coil's while the armature
-    is proved to only close) and the tail is the seated coil's, one part. A latching
+    is proved to only close) and the tail is the seated coil's, one part; over two curves
+    :func:`_gap_rise`'s, the tail the seated curve's. A latching
     coil's: :func:`_latch_bound_params`."""
     if is_latch(d):
         return _latch_bound_params(d)
@@ -305,7 +307,7 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             r_slow = r_slow_eddy
             peak_end["a"] = float(_branch_rise(tp, branch))
             i_pe, ends = np.array([float(_magnetising_rise(tp, branch))]), np.array([l_min, l_max])
-        elif drive.armature is not None:
+        elif drive.armature is not None and curve is None:
             branch.update(_armature_rise(drive.armature, hi, r_on, l_min, l_max, tp))
             # the peak's end current is bounded at the open gap, its decay at the seated
             # coil's highest inductance: one part
@@ -339,6 +341,12 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             # the exact rise at the lowest scale, tabulated; the tail's excess and decay on
             # the flux (model/flux_bound.py): one part
             times, currents = flux_bound.rise_table(flux.FluxCoil(curve, float(scale.min())), hi, r_on, tp)
+            seated_end = float(currents[-1])     # the flux at the peak's end is at most this one's
+            if drive.armature is not None:
+                # a moving armature over two curves (``curve`` the seated one): the open
+                # curve's rise until it can start, then the seated flux with the gap opened
+                # at once (model/flux_bound.py, gap_rise_table); the tail the seated coil's
+                times, currents = _gap_rise(drive.armature, curve, scale, hi, r_on, tp)
             branch.update({"rise_time_s": [float(x) for x in times], "rise_current_a": [float(x) for x in currents]})
             if current is not None:
                 # hysteretic: on for at most the delay after the peak, then off down to the
@@ -347,7 +355,7 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
                 ripple = hi * d.hold.thresholds.delay_s / float(scale.min())
             else:
                 ripple = hi * float(np.max(duty_hi)) / f / float(scale.min())
-            tail = flux_bound.tail_excess(curve, float(currents[-1]), hold_top, ripple)
+            tail = flux_bound.tail_excess(curve, seated_end, hold_top, ripple)
             branch.update({"tail_flux_wb": [float(x) for x in tail["table"][0]],
                            "tail_current_a": [float(x) for x in tail["table"][1]],
                            "top_a": max(float(currents[-1]), tail["reach_a"])})
@@ -529,6 +537,23 @@ def _armature_rise(arm, supply: float, r_on: float, lc_low: float, lc_high: floa
     closing = start + armature_bound.closing_window(arm.mass, arm.damping, arm.spring_rate, arm.restitution)
     return {"inductance_h": lc_low / ratio, "closed_inductance_h": lc_low, "flux_ratio": ratio,
             "closing_s": min(closing, peak_s)}
+
+
+def _gap_rise(arm, seated, scale, v: float, r: float, peak_s: float):
+    """``(times s, currents A)``: the rise bound of a moving armature over two curves
+    (:func:`~coildrive.model.flux_bound.gap_rise_table`), ``seated`` the seated curve,
+    ``scale`` the tolerance scales, at ``v`` V through the coldest on-loop's ``r`` ohm over
+    a peak ``peak_s`` s long; the open stop is left no sooner than
+    :func:`~coildrive.model.flux_bound.earliest_start` (preload + load against the closing
+    force at the highest scale, the open curve's fastest rise), and the armature only
+    closes for :func:`~coildrive.model.armature_bound.closing_window` after that (the
+    closing force grows with the flux linkage alone, as the linear coil's does)."""
+    opened = flux.curve(arm.open_current, arm.open_linkage)
+    low, high = float(np.min(scale)), float(np.max(scale))
+    start = flux_bound.earliest_start(opened, seated, low, high, arm.stroke, arm.spring_preload + arm.load_force,
+                                      v, r)
+    closing = start + armature_bound.closing_window(arm.mass, arm.damping, arm.spring_rate, arm.restitution)
+    return flux_bound.gap_rise_table(opened, seated, low, v, r, peak_s, start, closing)
 
 
 def _eddy_curve_branch(coil, v: float, r: float, r_e: float, peak_s: float, top_m: float,
@@ -1054,17 +1079,18 @@ def rail_curves(result: SystemResult, points: int = 6000) -> list[dict]:
 
 def _refuse(system: System, ch) -> None:
     """What the rail's current bound is made for: a linear coil (with a moving armature,
-    an eddy term or both) or a flux-linkage curve (no armature), on one switch or a full
-    bridge, under a voltage-mode (fixed, supply-table or closed-loop) hold or a
-    current-mode one, or a latching coil, or a boosted peak. Anything else is refused in
-    one line: a curve with a moving armature (the closing armature's current is not proved
-    to stay under the open curve's rise, docs/design-method.md, "A flux-linkage curve"), a
-    boosted peak with an eddy term, and a boosted peak without ``supply.boost_efficiency``
-    (its converter's draw)."""
+    an eddy term or both) or a flux-linkage curve (with a moving armature over two curves
+    too), on one switch or a full bridge, under a voltage-mode (fixed, supply-table or
+    closed-loop) hold or a current-mode one, or a latching coil, or a boosted peak.
+    Anything else is refused in one line: a moving armature over two curves with an eddy
+    term or a boosted peak (its bound takes the coil's own terminal voltage), a boosted
+    peak with an eddy term, and a boosted peak without ``supply.boost_efficiency`` (its
+    converter's draw)."""
     d = ch.drive
     why = None
-    if d.coil.flux_current and d.armature is not None:
-        key, why = "armature", "a moving armature with a flux-linkage curve"
+    if d.coil.flux_current and d.armature is not None and (d.coil.eddy_resistance or d.supply.boosted):
+        key, why = "armature", ("a moving armature over flux-linkage curves with an eddy-current term or a "
+                                "boosted peak")
     elif d.supply.boosted and d.coil.eddy_resistance:
         key, why = "supply.boost", "a boosted peak with an eddy-current term"
     elif d.supply.boosted and not d.supply.boost_efficiency > 0:
@@ -1074,7 +1100,7 @@ def _refuse(system: System, ch) -> None:
     if why is not None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
                          "in a system yet; expected a linear coil (with an [armature], an eddy term or both) "
-                         "or a flux-linkage curve (no [armature]), one switch or a full bridge and a voltage-mode "
+                         "or a flux-linkage curve (an [armature] without an eddy term), one switch or a full bridge and a voltage-mode "
                          "fixed, supply-table, closed-loop or current-mode hold, or a latching coil; a boosted "
                          "peak without an eddy term")
 
