@@ -96,11 +96,16 @@ def _branch(t, b):
     t = np.asarray(t, float)
     rt, ri = np.array(b["rise_time_s"]), np.array(b["rise_current_a"])
     rise = ri[np.minimum(np.searchsorted(rt, np.minimum(t, b["peak_s"]), side="left"), len(rt) - 1)]
-    age = np.maximum(t - b["peak_s"] - b["pwm_period_s"], 0)
+    return np.where(t < 0, 0, np.where(t <= b["peak_s"], rise, flux_tail(t, b)))
+
+
+def flux_tail(t, b):
+    """A curve branch's tail (A) ``t`` s after switch-on, written afresh: the flux excess
+    decaying from the end of the first PWM period, the next tabulated current up."""
+    age = np.maximum(np.asarray(t, float) - b["peak_s"] - b["pwm_period_s"], 0)
     left = b["tail_flux_wb"][-1] * np.exp(-age * b["slow_resistance_ohm"] / b["tail_inductance_h"][0])
     ft, fi = np.array(b["tail_flux_wb"]), np.array(b["tail_current_a"])
-    tail = fi[np.minimum(np.searchsorted(ft, left, side="left"), len(ft) - 1)]
-    return np.where(t < 0, 0, np.where(t <= b["peak_s"], rise, tail))
+    return fi[np.minimum(np.searchsorted(ft, left, side="left"), len(ft) - 1)]
 
 
 def test_curve_bound_never_below_the_simulated_worst(system):
