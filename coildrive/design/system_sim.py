@@ -8,10 +8,11 @@ timer's, counting from 0 s, the first channel's switch-on), off at its own compa
 rail's current is the sum of the switches' currents (a coil's current while its switch
 conducts, and while it decays through a clamp across its switch, which takes it from the
 rail). On a rail with the system's source resistance and capacitance whose channels are
-all linear coils on one switch with voltage-mode holds and a path across the coil, the
-bus droops and its droop is fed back into the coils, exact between switching moments
-(:func:`coildrive.model.shared_bus.on_bus`; ``SystemRun.bus``); any other rail runs on
-a stiff bus (``SystemRun.stiff`` says why).
+all linear coils (an eddy term too) on one switch with voltage-mode holds and a path
+across the coil, the bus droops and its droop is fed back into the coils, exact between
+switching moments (:func:`coildrive.model.shared_bus.on_bus` on each channel's
+:func:`bus_run`; ``SystemRun.bus``); any other rail runs on a stiff bus
+(``SystemRun.stiff`` says why).
 
 A current-mode channel runs its own actuation
 (:func:`coildrive.design.hold_current.current_mode_actuation`: the nominal thresholds
@@ -43,9 +44,9 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..model.circuit import full_bridge, loop, split_decay
-from ..model.shared_bus import on_bus
-from ..model.shared_pwm import HOLD_OFF, RELEASE, ChannelRun, channel_run
-from ..model.waveform import actuation
+from ..model.shared_bus import BusRun, on_bus
+from ..model.shared_pwm import HOLD_OFF, ON, RELEASE, ChannelRun, channel_run
+from ..model.waveform import Waveform, actuation
 from .firmware import firmware_setting
 from .hold_current import current_mode_actuation
 from .system import is_latch
@@ -180,12 +181,13 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
         if not rail_row.get("source_resistance_ohm"):
             continue
         ks = [n for n, c in enumerate(result.channels) if c.name in rail_row["channels"]]
-        why = _stiff_reason([result.channels[n] for n in ks], [runs[n] for n in ks])
+        fed = [bus_run(result.channels[n].design.drive, runs[n], starts[n], supply, coil_temp, r_factor, l_factor)
+               for n in ks]
+        why = _stiff_reason([result.channels[n] for n in ks], fed)
         if why is not None:
             stiff.append(f"rail {', '.join(rail_row['channels'])}: {why}")
             continue
-        cur, bus = on_bus(supply, rail_row["source_resistance_ohm"], rail_row["capacitance_f"],
-                          [runs[n] for n in ks], t)
+        cur, bus = on_bus(supply, rail_row["source_resistance_ohm"], rail_row["capacitance_f"], fed, t)
         for p, n in enumerate(ks):
             current[n] = cur[p]
             draw[n] = cur[p] * on[n]
@@ -195,21 +197,55 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
                      draw, starts, buses, stiff)
 
 
-def _stiff_reason(channels, runs) -> str | None:
+def _stiff_reason(channels, fed) -> str | None:
     """Why a drooping rail's channels run on the stiff bus, or ``None`` when the bus's
-    droop is fed back into them (:func:`coildrive.model.shared_bus.on_bus`: linear coils
-    on one switch, voltage-mode holds, a freewheel path across the coil)."""
-    for c, r in zip(channels, runs):
-        if not isinstance(r, ChannelRun):
+    droop is fed back into them (:func:`coildrive.model.shared_bus.on_bus`: linear coils,
+    an eddy term too, on one switch, voltage-mode holds, a freewheel path across the coil;
+    ``fed``: each channel's :func:`bus_run`)."""
+    for c, r in zip(channels, fed):
+        if r is None:
             what = ("a latching coil" if is_latch(c.design) else
                     "a current-mode hold" if c.design.hold.mode == "current" else
                     "a boosted peak" if c.design.drive.supply.boosted else
-                    "a moving armature, a flux-linkage curve, an eddy term or a full bridge")
+                    "a moving armature, a flux-linkage curve or a full bridge")
             return f"channel {c.name!r} has {what}: the bus is taken stiff (its droop is the design's)"
         if c.design.drive.freewheel.type == "clamp":
             return (f"channel {c.name!r} decays through a clamp across its switch, from the rail: the "
                     "bus is taken stiff (its droop is the design's)")
     return None
+
+
+def bus_run(drive, run, start: float, supply: float, coil_temp: float, r_factor: float,
+            l_factor: float) -> BusRun | None:
+    """A channel as the drooping bus feeds it (:class:`~coildrive.model.shared_bus.BusRun`):
+    a linear coil on one switch under a voltage-mode hold (its
+    :class:`~coildrive.model.shared_pwm.ChannelRun`), or with an eddy term (its own
+    actuation's switching moments, the run's ``switch_on`` and split decay's ``bypass_on``:
+    on, the hold's path while off before the final turn-off or while the bypass conducts,
+    the release path after; the loop's magnetising inductance and eddy resistance at
+    ``supply`` V, ``coil_temp`` degC and the tolerance factors); ``None`` for anything else
+    (:func:`_stiff_reason` says why)."""
+    if isinstance(run, ChannelRun):
+        return BusRun.of(run)
+    if not (isinstance(run, Waveform) and drive.coil.eddy_resistance and not drive.coil.flux_current
+            and drive.armature is None and not full_bridge(drive) and drive.hold.mode != "current"
+            and not drive.supply.boosted):
+        return None
+    lp = loop(drive, supply, coil_temp, r_factor, l_factor)
+    rel = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
+    after = np.append(run.time[1:] != run.time[:-1], True)       # the value after a step
+    tw, sw = run.time[after] + start, run.switch_on[after]
+    last_on = int(np.flatnonzero(sw)[-1])
+    bypass = np.zeros(len(tw), np.int8) if run.bypass_on is None else run.bypass_on[after]
+    kind = np.where(sw == 1, ON, np.where((np.arange(len(tw)) < last_on) | (bypass == 1), HOLD_OFF, RELEASE))
+    # the row after a switch edge sits up to EDGE s after it (model/waveform.py): each
+    # segment starts at the row before its first
+    first = np.flatnonzero(np.append(True, kind[1:] != kind[:-1]))
+    edges = tw[np.maximum(first - 1, 0)]
+    edges[0] = tw[0]
+    coil = lp.inductance
+    return BusRun(edges, kind[first], float(lp.r_on), float(lp.r_off), float(lp.v_off), float(rel.r_off),
+                  float(rel.v_off), float(coil.magnetising), float(coil.resistance))
 
 
 @dataclass(frozen=True)

@@ -27,6 +27,9 @@ A, V, ohm, H, F, s.
 
 from __future__ import annotations
 
+import math
+from dataclasses import dataclass
+
 import numpy as np
 
 #: Samples of each piece between two switching moments where the lowest bus is looked for
@@ -36,16 +39,30 @@ PIECE_SAMPLES = 2000
 GOLDEN_STEPS = 60
 
 
-def _piece(v_s, r_s, c, r, l):
-    """``(eigenvalues, eigenvectors, their inverse, steady state)`` of the system with the
-    coils ``r``, ``l`` (arrays, possibly empty) on the bus."""
+def _on_matrix(r_s, c, r, l, share=None):
+    """``A`` of the coils ``r``, ``l`` on the bus (the bus last). ``share`` per coil: ``g =
+    R_e/(R + R_e)`` with an eddy resistance ``R_e`` across its magnetising branch (1 without):
+    its state is the magnetising current ``i_m``, the terminal current ``(v + R_e i_m)/(R +
+    R_e) = g i_m + (1 - g) v/R`` the bus feeds, and ``L di_m/dt = g (v - R i_m)``."""
     m = len(r)
+    g = np.ones(m) if share is None else np.asarray(share, float)
     a = np.zeros((m + 1, m + 1))
     for k in range(m):
-        a[k, k] = -r[k] / l[k]
-        a[k, m] = 1.0 / l[k]
-        a[m, k] = -1.0 / c
-    a[m, m] = -1.0 / (r_s * c)
+        a[k, k] = -g[k] * r[k] / l[k]
+        a[k, m] = g[k] / l[k]
+        a[m, k] = -g[k] / c
+        a[m, m] -= (1.0 - g[k]) / (r[k] * c)
+    a[m, m] -= 1.0 / (r_s * c)
+    return a
+
+
+def _piece(v_s, r_s, c, r, l, share=None):
+    """``(eigenvalues, eigenvectors, their inverse, steady state)`` of the system with the
+    coils ``r``, ``l`` (arrays, possibly empty; ``share``: :func:`_on_matrix`'s) on the bus.
+    At the steady state each magnetising current is ``v/R`` (the inductance a short across
+    any eddy resistance)."""
+    m = len(r)
+    a = _on_matrix(r_s, c, r, l, share)
     lam, vec = np.linalg.eig(a)
     # steady state: v = V_s / (1 + R_s sum 1/R_k), i_k = v / R_k
     v_ss = v_s / (1.0 + r_s * float(np.sum(1.0 / np.asarray(r)))) if m else v_s
@@ -199,6 +216,60 @@ def lowest_bus_pwm(v_s: float, r_s: float, c: float, r_on, r_off, v_off, l, on, 
     return best[0], best[1]
 
 
+@dataclass(frozen=True)
+class BusRun:
+    """One channel as :func:`on_bus` switches it: its segments' start times ``start`` (s)
+    and kinds ``kind`` (:mod:`coildrive.model.shared_pwm`'s ``ON``, ``HOLD_OFF``,
+    ``RELEASE``), the on-loop's ``r_on`` ohm, the hold's off path ``r_off`` ohm against
+    ``v_off`` V, the release path's ``r_rel`` ohm against ``v_rel`` V (paths across the
+    coil), the (magnetising) inductance ``ind`` H and an eddy resistance across it
+    ``r_eddy`` ohm (``inf``: none)."""
+
+    start: np.ndarray
+    kind: np.ndarray
+    r_on: float
+    r_off: float
+    v_off: float
+    r_rel: float
+    v_rel: float
+    ind: float
+    r_eddy: float = math.inf
+
+    @classmethod
+    def of(cls, run) -> "BusRun":
+        """A plain coil's :class:`~coildrive.model.shared_pwm.ChannelRun` on the bus."""
+        return cls(run.start, run.kind, run.r_on, run.r_off, run.v_off, run.r_rel, run.v_rel, run.ind)
+
+    @property
+    def share(self) -> float:
+        """``R_e/(R_on + R_e)`` (1 without an eddy term)."""
+        return 1.0 if math.isinf(self.r_eddy) else self.r_eddy / (self.r_on + self.r_eddy)
+
+    def decay(self, i0: float, r_p: float, v_p: float, dt) -> tuple[np.ndarray, np.ndarray]:
+        """``(magnetising, terminal)`` currents (A) ``dt`` s into a freewheel through the
+        path ``r_p`` ohm against ``v_p`` V from ``i0`` A (closed form: the path does not see
+        the bus). Without an eddy term the plain decay, held at zero. With ``R_e``: while the
+        path conducts (``R_e i_m > v_p``) ``L di_m/dt = -g (R_p i_m + v_p)`` (``g = R_e/(R_p +
+        R_e)``), the terminal current ``(R_e i_m - v_p)/(R_p + R_e)``; from ``i_m = v_p/R_e``
+        the diode blocks and the flux's current decays through ``R_e`` alone, ``L di_m/dt =
+        -R_e i_m``, the terminal current 0."""
+        dt = np.asarray(dt, float)
+        if math.isinf(self.r_eddy):
+            x = np.maximum((i0 + v_p / r_p) * np.exp(-dt * r_p / self.ind) - v_p / r_p, 0.0)
+            return x, x
+        r_e = self.r_eddy
+        g = r_e / (r_p + r_e)
+        block = v_p / r_e
+        if i0 > block:
+            t_b = self.ind / (g * r_p) * math.log((i0 + v_p / r_p) / (block + v_p / r_p))
+            live = (i0 + v_p / r_p) * np.exp(-dt * g * r_p / self.ind) - v_p / r_p
+        else:
+            t_b, live = 0.0, np.full(dt.shape, i0)
+        start = min(i0, block)
+        x = np.where(dt < t_b, live, start * np.exp(-np.maximum(dt - t_b, 0.0) * r_e / self.ind))
+        return x, np.where(dt < t_b, np.maximum((r_e * x - v_p) / (r_p + r_e), 0.0), 0.0)
+
+
 #: Largest condition number of a piece's eigenvector matrix evaluated through the
 #: eigen-decomposition; past it (nearly equal but unequal time constants) each sample is
 #: the matrix exponential itself (scipy.linalg.expm), slower but exact to rounding.
@@ -206,19 +277,22 @@ EIG_CONDITION = 1e8
 
 
 def on_bus(v_s: float, r_s: float, c: float, runs, t) -> tuple[np.ndarray, np.ndarray]:
-    """``(currents, bus)``: the channels' coil currents (A, one row per run) and the bus
-    (V) at the times ``t`` (s, ascending), each channel switched as its
-    :class:`~coildrive.model.shared_pwm.ChannelRun` says (its switching moments are the
-    timer's and its peak's: they do not depend on the bus) but fed from the bus ``v(t)``
-    behind ``r_s`` ohm and ``c`` F from ``v_s`` V instead of a stiff one. While its
-    switch conducts a coil is on the bus (``L di/dt = v - R_on i``); in its hold's
-    off-times and its release it freewheels in its own loop (a path across the coil: a
-    diode, a Zener or a resistor) and draws nothing, down to zero and held there (closed
-    form: the path does not see the bus). Between two switching moments of any channel
+    """``(currents, bus)``: the channels' coil currents (A, one row per run; the terminal
+    current with an eddy term) and the bus (V) at the times ``t`` (s, ascending), each
+    channel switched as its :class:`BusRun` says (its switching moments are the timer's
+    and its peak's: they do not depend on the bus) but fed from the bus ``v(t)`` behind
+    ``r_s`` ohm and ``c`` F from ``v_s`` V instead of a stiff one. While its switch
+    conducts a coil is on the bus (``L di/dt = v - R_on i``; with an eddy term
+    :func:`_on_matrix`'s magnetising current); in its hold's off-times and its release it
+    freewheels in its own loop (a path across the coil: a diode, a Zener or a resistor)
+    and draws nothing, down to zero and held there (closed form: the path does not see
+    the bus; :meth:`BusRun.decay`). Between two switching moments of any channel
     the coils on the bus and the capacitor are the linear system of the module docstring,
     solved exactly through its eigen-decomposition (or the matrix exponential where that
     is ill-conditioned, :data:`EIG_CONDITION`). The bus starts at ``v_s`` (the capacitor
-    charged), every coil at zero before its run's start."""
+    charged), every coil at zero before its run's start; a sample at a switching moment
+    has the value just before it (a step, with an eddy term, comes after it), but at a
+    run's own switch-on the value after it (its first)."""
     from .shared_pwm import HOLD_OFF, ON
 
     t = np.asarray(t, float)
@@ -227,11 +301,14 @@ def on_bus(v_s: float, r_s: float, c: float, runs, t) -> tuple[np.ndarray, np.nd
     bus = np.full(len(t), float(v_s))
     moments = np.unique(np.concatenate([r.start for r in runs] + [[t[-1]]]))
     moments = moments[moments <= t[-1]]
-    state = np.zeros(n)            # each coil's current at the piece's start
+    state = np.zeros(n)            # each coil's (magnetising) current at the piece's start
+    after = np.zeros(n)            # its terminal current at the last piece's end
     v = float(v_s)
     for a_t, b_t in zip(moments[:-1], moments[1:]):
-        lo, hi = np.searchsorted(t, a_t, side="left"), np.searchsorted(t, b_t, side="left")
-        dt = np.append(t[lo:hi] - a_t, b_t - a_t)     # the piece's samples, then its end
+        # the piece's samples after its start up to its end (a sample at a switching moment
+        # has the value before it: an eddy term's terminal current steps there), then its end
+        lo, hi = np.searchsorted(t, a_t, side="right"), np.searchsorted(t, b_t, side="right")
+        dt = np.append(t[lo:hi] - a_t, b_t - a_t)
         active, off = [], []
         for k, r in enumerate(runs):
             if a_t < r.start[0]:
@@ -243,33 +320,42 @@ def on_bus(v_s: float, r_s: float, c: float, runs, t) -> tuple[np.ndarray, np.nd
                 path = (r.r_off, r.v_off) if kind == HOLD_OFF else (r.r_rel, r.v_rel)
                 off.append((k, path))
         for k, (r_p, v_p) in off:
-            x = np.maximum((state[k] + v_p / r_p) * np.exp(-dt * r_p / runs[k].ind) - v_p / r_p, 0.0)
-            cur[k, lo:hi], state[k] = x[:-1], x[-1]
+            x, terminal = runs[k].decay(state[k], r_p, v_p, dt)
+            cur[k, lo:hi], state[k], after[k] = terminal[:-1], x[-1], terminal[-1]
         if active:
-            xs = _solve(v_s, r_s, c, [runs[k].r_on for k in active], [runs[k].ind for k in active],
-                        np.append(state[active], v), dt)
+            share = [runs[k].share for k in active]
+            r_on = [runs[k].r_on for k in active]
+            xs = _solve(v_s, r_s, c, r_on, [runs[k].ind for k in active], np.append(state[active], v), dt, share)
         else:                       # the capacitor recharges through R_s alone
             xs = (v_s + (v - v_s) * np.exp(-dt / (r_s * c)))[None, :]
         for p, k in enumerate(active):
-            cur[k, lo:hi], state[k] = xs[p, :-1], xs[p, -1]
+            terminal = share[p] * xs[p] + (1.0 - share[p]) * xs[-1] / r_on[p]
+            cur[k, lo:hi], state[k], after[k] = terminal[:-1], xs[p, -1], terminal[-1]
+            if a_t == runs[k].start[0] and lo > 0 and t[lo - 1] == a_t:
+                # a run's own switch-on sample: the step there is its first value (a
+                # waveform's first row), from zero
+                cur[k, lo - 1] = (1.0 - share[p]) * v / r_on[p]
         bus[lo:hi], v = xs[-1, :-1], float(xs[-1, -1])
     last = t >= moments[-1]
     bus[last] = v
-    cur[:, last] = state[:, None]
+    cur[:, last] = after[:, None]
     return cur, bus
 
 
-def _solve(v_s, r_s, c, r, l, x0, dt) -> np.ndarray:
-    """The state ``(i..., v)`` of the coils ``r``, ``l`` on the bus from ``x0`` after each
-    of the times ``dt`` (s): rows per state, columns per time."""
-    piece = _piece(v_s, r_s, c, r, l)
+def _solve(v_s, r_s, c, r, l, x0, dt, share=None) -> np.ndarray:
+    """The state ``(i..., v)`` of the coils ``r``, ``l`` (``share``: :func:`_on_matrix`'s)
+    on the bus from ``x0`` after each of the times ``dt`` (s): rows per state, columns per
+    time."""
+    piece = _piece(v_s, r_s, c, r, l, share)
     if np.linalg.cond(piece[1]) <= EIG_CONDITION:
         out = _evaluate(piece, x0, dt)
         out[:, dt == 0.0] = np.asarray(x0, float)[:, None]     # the start itself, not rounded
         return out
     from scipy.linalg import expm
 
-    a, b = _system(v_s, r_s, c, ["on"] * len(r), r, l, np.zeros(len(r)))
+    a = _on_matrix(r_s, c, r, l, share)
+    b = np.zeros(len(x0))
+    b[-1] = v_s / (r_s * c)
     m = len(x0)
     aug = np.zeros((m + 1, m + 1))
     aug[:m, :m], aug[:m, m] = a, b
