@@ -282,7 +282,12 @@ def droop_against_solve_ivp(system, tmp_path) -> np.ndarray:
     ``R_e`` across it has its magnetising current ``i_m`` as the state (Kirchhoff's laws):
     the terminal current ``i`` is ``(v + R_e i_m)/(R_on + R_e)`` while its switch conducts,
     ``max(0, (R_e i_m - V_fw)/(R_fw + R_e))`` freewheeling (the diode blocking at zero), and
-    ``L di_m/dt = R_e (i - i_m)``; the CSV's current is the terminal one."""
+    ``L di_m/dt = R_e (i - i_m)``; the CSV's current is the terminal one. A full bridge's
+    coil is driven through two switches, decays slowly through the two low-side ones
+    (``-R_off i``, off the bus) and after its final turn-off returns its current into the bus
+    through two body diodes (``L di/dt = -(v + 2 V_d) - (R_coil + R_sense) i``, the
+    capacitor taking ``+i``) until the diodes block at zero: the rail's current is negative
+    there. Compared up to the CSV's end."""
     from scipy.integrate import solve_ivp
 
     csv = tmp_path / "rail.csv"
@@ -295,17 +300,24 @@ def droop_against_solve_ivp(system, tmp_path) -> np.ndarray:
     data = np.loadtxt(csv, delimiter=",", skiprows=1)
     t, bus = data[:, 0], data[:, head.index("bus_v")]
     names = [h[:-3] for h in head if h.endswith("_on")]
-    r_on, r_off, v_d, ind, ups, downs, r_rel, v_rel, r_e = [], [], [], [], [], [], [], [], []
+    r_on, r_off, v_d, ind, ups, downs, r_rel, v_rel, r_e, bridge = [], [], [], [], [], [], [], [], [], []
     for name in names:
         drv = load_drive(system.parent / ("purge-valve-24v.toml" if name.startswith("purge") else
                                           "dispense-valve-24v.toml"))
         b, c, fw = drv.board, drv.coil, drv.freewheel
         r_coil = c.resistance * (1 + 0.00393 * (0.0 - c.reference_temp)) * 0.93
-        r_on.append(r_coil + b.sense.resistance + drv.switch.on_resistance)
-        r_off.append(r_coil + b.sense.resistance + fw.bypass_resistance)
-        v_d.append(fw.diode_drop)
-        r_rel.append(r_coil + b.sense.resistance)          # the release: diode and Zener
-        v_rel.append(fw.diode_drop + fw.zener_voltage)
+        bridge.append(drv.switch.topology == "full_bridge")
+        r_sw = drv.switch.on_resistance * (2 if bridge[-1] else 1)      # a bridge drives through two
+        r_on.append(r_coil + b.sense.resistance + r_sw)
+        r_rel.append(r_coil + b.sense.resistance)
+        if bridge[-1]:    # slow decay through the low-side pair; the fast decay through two diodes
+            r_off.append(r_coil + (b.sense.resistance if b.sense.position == "coil" else 0.0) + r_sw)
+            v_d.append(0.0)
+            v_rel.append(2 * fw.diode_drop)
+        else:             # the hold's bypassed diode; the release through the diode and the Zener
+            r_off.append(r_coil + b.sense.resistance + fw.bypass_resistance)
+            v_d.append(fw.diode_drop)
+            v_rel.append(fw.diode_drop + fw.zener_voltage)
         ind.append(c.inductance * 0.85)
         r_e.append(c.eddy_resistance or np.inf)
         on = data[:, head.index(f"{name}_on")].astype(int)
@@ -317,6 +329,7 @@ def droop_against_solve_ivp(system, tmp_path) -> np.ndarray:
         ups.append(np.concatenate([[t[0]] if on[0] else [], t[up]]))
         downs.append(t[:-1][np.diff(on) < 0])
     r_on, r_off, v_d, ind, r_rel, v_rel, r_e = (np.array(x) for x in (r_on, r_off, v_d, ind, r_rel, v_rel, r_e))
+    bridge = np.array(bridge)
     eddy = np.isfinite(r_e)
     r_e_ = np.where(eddy, r_e, 1.0)
 
@@ -324,7 +337,7 @@ def droop_against_solve_ivp(system, tmp_path) -> np.ndarray:
         e, re, ro = (x.reshape(x.shape + (1,) * (np.ndim(i) - 1)) for x in (eddy, r_e_, r_on))
         through = np.where(sw, (v + re * i) / (ro + re), np.maximum((re * i - v_fw) / (r_fw + re), 0.0))
         return np.where(e, through, np.where(sw, i, np.maximum(i, 0.0)))
-    t_end = max(float(d[-1]) for d in downs)          # the last final turn-off
+    t_end = float(t[-1])
     edges = np.unique(np.concatenate([*ups, *downs, [t_end]]))
     edges = edges[edges <= t_end]
 
@@ -341,27 +354,32 @@ def droop_against_solve_ivp(system, tmp_path) -> np.ndarray:
         sw, gone = switched(a)
         r_fw, v_fw = np.where(gone, r_rel, r_off), np.where(gone, v_rel, v_d)
 
-        def rhs(_, y, sw=sw, r_fw=r_fw, v_fw=v_fw):
+        back = gone & bridge       # returning into the bus
+
+        def rhs(_, y, sw=sw, r_fw=r_fw, v_fw=v_fw, back=back):
             i, v = y[:-1], y[-1]
             term = terminal(i, v, sw, r_fw, v_fw)
-            di = np.where(sw, (v - r_on * i) / ind, np.where(i > 0, -(r_fw * i + v_fw) / ind, 0.0))
+            di = np.where(sw, (v - r_on * i) / ind, np.where(i > 0, -(r_fw * i + v_fw + back * v) / ind, 0.0))
             di = np.where(eddy, r_e_ * (term - i) / ind, di)
-            return np.append(di, ((20.0 - v) / 0.25 - np.sum(term * sw)) / 1e-3)
+            fed = np.sum(term * sw) - np.sum(np.where(back & (i > 0), i, 0.0))
+            return np.append(di, ((20.0 - v) / 0.25 - fed) / 1e-3)
         inside = (tk >= a) & (tk < b_)
-        sol = solve_ivp(rhs, (a, b_), x, method="DOP853", rtol=1e-10, atol=1e-12,
-                        t_eval=np.append(tk[inside], b_))
+        sol = solve_ivp(rhs, (a, b_), x, method="DOP853", rtol=1e-10, atol=1e-12, dense_output=True)
+        # (the CSV's 9 digits may print two samples alike: its dense output at each)
+        y = sol.sol(tk[inside]) if inside.any() else np.zeros((len(x), 0))
         # the terminal current from the state by the CSV's own switch column: at an edge's
         # sample (a step with an eddy term) the CSV has the switch's state there
         sw_csv = np.array([data[keep, head.index(f"{n}_on")][inside] for n in names]) > 0
-        want[:-1, inside] = terminal(sol.y[:-1, :-1], sol.y[-1, :-1], sw_csv, r_fw[:, None], v_fw[:, None])
-        want[-1, inside] = sol.y[-1, :-1]
+        want[:-1, inside] = terminal(y[:-1], y[-1], sw_csv, r_fw[:, None], v_fw[:, None])
+        want[-1, inside] = y[-1]
         x = sol.y[:, -1]
     # scipy DOP853 (rtol 1e-10): 1e-6 V on the bus, 1e-6 A on a coil
     assert np.abs(bus[keep] - want[-1]).max() <= 1e-6
     for k, name in enumerate(names):
         got = data[keep, head.index(f"{name}_current_a")]
         assert np.abs(got - want[k]).max() <= 1e-6, name
-    draw = sum(data[:, head.index(f"{n}_current_a")] * data[:, head.index(f"{n}_on")] for n in names)
+    draw = sum(data[:, head.index(f"{n}_current_a")] * (data[:, head.index(f"{n}_on")] - (bridge[k] & (t > d[-1])))
+               for k, (n, d) in enumerate(zip(names, downs)))
     assert np.allclose(data[:, 1], draw, rtol=0, atol=2e-8)
     print(f"lowest bus {bus.min():.6f} V (solve_ivp {want[-1].min():.6f} V)")
     return bus

@@ -223,7 +223,10 @@ class BusRun:
     ``RELEASE``), the on-loop's ``r_on`` ohm, the hold's off path ``r_off`` ohm against
     ``v_off`` V, the release path's ``r_rel`` ohm against ``v_rel`` V (paths across the
     coil), the (magnetising) inductance ``ind`` H and an eddy resistance across it
-    ``r_eddy`` ohm (``inf``: none)."""
+    ``r_eddy`` ohm (``inf``: none). ``returns``: the release returns the current into the
+    bus (a full bridge's fast decay through two body diodes: ``L di/dt = -(v + v_rel) -
+    r_rel i``, ``v_rel`` the two diode drops, the capacitor taking ``+i``) until it is
+    zero, where the diodes block."""
 
     start: np.ndarray
     kind: np.ndarray
@@ -234,11 +237,18 @@ class BusRun:
     v_rel: float
     ind: float
     r_eddy: float = math.inf
+    returns: bool = False
 
     @classmethod
     def of(cls, run) -> "BusRun":
         """A plain coil's :class:`~coildrive.model.shared_pwm.ChannelRun` on the bus."""
         return cls(run.start, run.kind, run.r_on, run.r_off, run.v_off, run.r_rel, run.v_rel, run.ind)
+
+    def kind_at(self, t) -> np.ndarray:
+        """The segment's kind at the times ``t`` (s; a time at a switching moment: the one
+        before it, as :func:`on_bus`'s samples); -1 before the switch-on."""
+        k = np.searchsorted(self.start, np.asarray(t, float), side="left") - 1
+        return np.where(k >= 0, self.kind[np.clip(k, 0, None)], -1)
 
     @property
     def share(self) -> float:
@@ -293,7 +303,7 @@ def on_bus(v_s: float, r_s: float, c: float, runs, t) -> tuple[np.ndarray, np.nd
     charged), every coil at zero before its run's start; a sample at a switching moment
     has the value just before it (a step, with an eddy term, comes after it), but at a
     run's own switch-on the value after it (its first)."""
-    from .shared_pwm import HOLD_OFF, ON
+    from .shared_pwm import HOLD_OFF, ON, RELEASE
 
     t = np.asarray(t, float)
     n = len(runs)
@@ -304,30 +314,56 @@ def on_bus(v_s: float, r_s: float, c: float, runs, t) -> tuple[np.ndarray, np.nd
     state = np.zeros(n)            # each coil's (magnetising) current at the piece's start
     after = np.zeros(n)            # its terminal current at the last piece's end
     v = float(v_s)
-    for a_t, b_t in zip(moments[:-1], moments[1:]):
+    pieces = list(zip(moments[:-1], moments[1:]))
+    while pieces:
+        a_t, b_t = pieces.pop(0)
         # the piece's samples after its start up to its end (a sample at a switching moment
         # has the value before it: an eddy term's terminal current steps there), then its end
         lo, hi = np.searchsorted(t, a_t, side="right"), np.searchsorted(t, b_t, side="right")
         dt = np.append(t[lo:hi] - a_t, b_t - a_t)
-        active, off = [], []
+        active, off, back = [], [], []
         for k, r in enumerate(runs):
             if a_t < r.start[0]:
                 continue
             kind = r.kind[np.searchsorted(r.start, a_t, side="right") - 1]
             if kind == ON:
                 active.append(k)
+            elif kind == RELEASE and r.returns:
+                if state[k] > 0.0:       # into the bus until the diodes block at zero
+                    back.append(k)
+                else:
+                    cur[k, lo:hi], state[k], after[k] = 0.0, 0.0, 0.0
             else:
                 path = (r.r_off, r.v_off) if kind == HOLD_OFF else (r.r_rel, r.v_rel)
                 off.append((k, path))
+        if back:
+            # the first of the returning currents to reach zero ends the piece there
+            returning = [(runs[k].r_rel, runs[k].ind, runs[k].v_rel) for k in back]
+            x0 = np.concatenate([state[active], state[back], [v]])
+            args = (v_s, r_s, c, [runs[k].r_on for k in active], [runs[k].ind for k in active],
+                    x0, [runs[k].share for k in active], returning)
+            ends = _solve(*args[:5], x0, np.array([b_t - a_t]), args[6], returning)[len(active):-1, 0]
+            if np.any(ends <= 0.0):
+                when = min(_first_zero(args, len(active) + p, b_t - a_t) for p in np.flatnonzero(ends <= 0.0))
+                pieces.insert(0, (a_t + when, b_t))
+                b_t = a_t + when
+                hi = np.searchsorted(t, b_t, side="right")
+                dt = np.append(t[lo:hi] - a_t, b_t - a_t)
         for k, (r_p, v_p) in off:
             x, terminal = runs[k].decay(state[k], r_p, v_p, dt)
             cur[k, lo:hi], state[k], after[k] = terminal[:-1], x[-1], terminal[-1]
-        if active:
-            share = [runs[k].share for k in active]
-            r_on = [runs[k].r_on for k in active]
-            xs = _solve(v_s, r_s, c, r_on, [runs[k].ind for k in active], np.append(state[active], v), dt, share)
+        share = [runs[k].share for k in active]
+        r_on = [runs[k].r_on for k in active]
+        if active or back:
+            xs = _solve(v_s, r_s, c, r_on, [runs[k].ind for k in active],
+                        np.concatenate([state[active], state[back], [v]]), dt, share,
+                        [(runs[k].r_rel, runs[k].ind, runs[k].v_rel) for k in back])
         else:                       # the capacitor recharges through R_s alone
             xs = (v_s + (v - v_s) * np.exp(-dt / (r_s * c)))[None, :]
+        for p, k in enumerate(back):
+            x = np.maximum(xs[len(active) + p], 0.0)
+            x[-1] = x[-1] if x[-1] > 1e-9 * max(state[k], 1e-300) else 0.0    # stopped at the piece's end
+            cur[k, lo:hi], state[k], after[k] = x[:-1], x[-1], x[-1]
         for p, k in enumerate(active):
             terminal = share[p] * xs[p] + (1.0 - share[p]) * xs[-1] / r_on[p]
             cur[k, lo:hi], state[k], after[k] = terminal[:-1], xs[p, -1], terminal[-1]
@@ -342,11 +378,49 @@ def on_bus(v_s: float, r_s: float, c: float, runs, t) -> tuple[np.ndarray, np.nd
     return cur, bus
 
 
-def _solve(v_s, r_s, c, r, l, x0, dt, share=None) -> np.ndarray:
-    """The state ``(i..., v)`` of the coils ``r``, ``l`` (``share``: :func:`_on_matrix`'s)
-    on the bus from ``x0`` after each of the times ``dt`` (s): rows per state, columns per
-    time."""
-    piece = _piece(v_s, r_s, c, r, l, share)
+def _first_zero(args, row: int, span: float) -> float:
+    """When (s, within ``span``) the state's component ``row`` of :func:`_solve` with
+    ``args`` first reaches zero: a returning current, which only falls (``L di/dt = -(v +
+    v_rel) - r_rel i < 0``), so it is bracketed by the piece (scipy's brentq on the closed
+    form)."""
+    from scipy.optimize import brentq
+
+    def at(s):
+        return float(_solve(*args[:5], args[5], np.array([s]), args[6], args[7])[row, 0])
+    return brentq(at, 0.0, span, xtol=1e-15, rtol=1e-14)
+
+
+def _with_returns(a, b, r_s, c, back):
+    """``(A, b)`` with coils returning into the bus appended before it (``back``: ``(r_rel
+    ohm, L H, v_rel V)`` each; :class:`BusRun`'s ``returns``)."""
+    m = a.shape[0] - 1
+    n = m + len(back)
+    big = np.zeros((n + 1, n + 1))
+    big[:m, :m], big[:m, n], big[n, :m], big[n, n] = a[:m, :m], a[:m, m], a[m, :m], a[m, m]
+    bb = np.zeros(n + 1)
+    bb[:m], bb[n] = b[:m], b[m]
+    for j, (r_p, l_p, v_p) in enumerate(back):
+        big[m + j, m + j] = -r_p / l_p
+        big[m + j, n] = -1.0 / l_p
+        big[n, m + j] = 1.0 / c
+        bb[m + j] = -v_p / l_p
+    return big, bb
+
+
+def _solve(v_s, r_s, c, r, l, x0, dt, share=None, back=()) -> np.ndarray:
+    """The state ``(i..., returning i..., v)`` of the coils ``r``, ``l`` (``share``:
+    :func:`_on_matrix`'s) on the bus, and of the coils ``back`` returning into it
+    (:func:`_with_returns`), from ``x0`` after each of the times ``dt`` (s): rows per state,
+    columns per time."""
+    if back:
+        a = _on_matrix(r_s, c, r, l, share)
+        b = np.zeros(a.shape[0])
+        b[-1] = v_s / (r_s * c)
+        a, b = _with_returns(a, b, r_s, c, back)
+        lam, vec = np.linalg.eig(a)
+        piece = (lam, vec, np.linalg.inv(vec), np.linalg.solve(a, -b))
+    else:
+        piece = _piece(v_s, r_s, c, r, l, share)
     if np.linalg.cond(piece[1]) <= EIG_CONDITION:
         out = _evaluate(piece, x0, dt)
         out[:, dt == 0.0] = np.asarray(x0, float)[:, None]     # the start itself, not rounded
@@ -354,8 +428,10 @@ def _solve(v_s, r_s, c, r, l, x0, dt, share=None) -> np.ndarray:
     from scipy.linalg import expm
 
     a = _on_matrix(r_s, c, r, l, share)
-    b = np.zeros(len(x0))
+    b = np.zeros(a.shape[0])
     b[-1] = v_s / (r_s * c)
+    if back:
+        a, b = _with_returns(a, b, r_s, c, back)
     m = len(x0)
     aug = np.zeros((m + 1, m + 1))
     aug[:m, :m], aug[:m, m] = a, b
