@@ -1161,9 +1161,10 @@ def _refuse(system: System, ch) -> None:
     if why is not None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
                          "in a system yet; expected a linear coil (with an [armature], an eddy term or both) "
-                         "or a flux-linkage curve (an [armature] without an eddy term), one switch or a full bridge and a voltage-mode "
-                         "fixed, supply-table, closed-loop or current-mode hold, or a latching coil; a boosted "
-                         "peak on a linear coil (an eddy term too) or on a curve without an eddy term")
+                         "or a flux-linkage curve (with an eddy term, or with an [armature] and no eddy term), "
+                         "on one switch or a full bridge under a voltage-mode fixed, supply-table, closed-loop "
+                         "or current-mode hold, or a latching coil; a boosted peak on a linear coil (an eddy "
+                         "term too) or on a curve with neither an eddy term nor an [armature]")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:

@@ -21,8 +21,11 @@ so ``x(t) = x_ss + e^{A t} (x(0) - x_ss)``, evaluated through the eigen-decompos
 peak's end and joins it at zero current. One coil is the 2x2 system of
 :mod:`coildrive.model.supply`, which the tests compare. :func:`lowest_bus_pwm` keeps the
 coils in the state after their peaks too: each PWM on-time of the shared timer puts a
-coil back on the bus, and while off it freewheels in its own loop down to zero. Units
-A, V, ohm, H, F, s.
+coil back on the bus, and while off it freewheels in its own loop down to zero.
+:func:`on_bus` runs every channel's whole actuation on the bus (:class:`BusRun`): a coil
+with an eddy resistance across it keeps its magnetising current in the state (still
+linear), and a full bridge's fast decay returns its current into the bus until its
+diodes block. Units A, V, ohm, H, F, s.
 """
 
 from __future__ import annotations
