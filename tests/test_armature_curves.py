@@ -104,12 +104,22 @@ class Fresh:
     each curve's PCHIP, blended in the gap; the co-energy from the PCHIP's
     antiderivative; the force ``-dW/dx`` at constant flux."""
 
-    def __init__(self):
+    def __init__(self, open_=None, seated=None, stroke=STROKE):
+        """``open_``/``seated``: ``(currents A, fluxes Wb)`` tables (default the latch's);
+        ``stroke`` m. Past a table's end each curve goes straight at its end slope (the
+        model's extension)."""
         from scipy.interpolate import PchipInterpolator
 
-        self.curves = {k: PchipInterpolator(*t) for k, t in (("o", open_table()), ("c", seated_table()))}
+        tables = {"o": open_table() if open_ is None else open_, "c": seated_table() if seated is None else seated}
+        self.curves = {k: PchipInterpolator(*t) for k, t in tables.items()}
         self.coenergy = {k: c.antiderivative() for k, c in self.curves.items()}
-        self.top = {"o": open_table()[0][-1], "c": seated_table()[0][-1]}
+        self.top = {k: float(t[0][-1]) for k, t in tables.items()}
+        self.stroke = stroke
+
+    def psi_of(self, k, i):
+        """Curve ``k``'s flux (Wb) at ``i`` A >= 0, straight past its table at its end slope."""
+        c, top = self.curves[k], self.top[k]
+        return float(c(min(i, top))) + max(i - top, 0.0) * float(c.derivative()(top))
 
     def i_of(self, k, psi):
         from scipy.optimize import brentq
@@ -117,20 +127,27 @@ class Fresh:
         a = abs(psi)
         if a == 0.0:
             return 0.0
-        i = brentq(lambda i: float(self.curves[k](i)) - a, 0.0, 1.01 * self.top[k], xtol=1e-16, rtol=1e-15)
+        hi = 1.01 * self.top[k]
+        while self.psi_of(k, hi) < a:
+            hi *= 2.0
+        i = brentq(lambda i: self.psi_of(k, i) - a, 0.0, hi, xtol=1e-16, rtol=1e-15)
         return math.copysign(i, psi)
 
     def current(self, psi, x):
         i_o, i_c = self.i_of("o", psi), self.i_of("c", psi)
-        return i_c + x / STROKE * (i_o - i_c)
+        return i_c + x / self.stroke * (i_o - i_c)
 
     def energy(self, k, psi):
         """``W_k(psi) = psi i - W'_k(i)`` J (the field energy of curve k at flux psi)."""
-        i = self.i_of(k, psi)
-        return psi * i - float(self.coenergy[k](abs(i)))
+        i = abs(self.i_of(k, psi))
+        top = self.top[k]
+        coenergy = float(self.coenergy[k](min(i, top)))
+        if i > top:     # the straight extension: psi(top) + slope (i - top), integrated
+            coenergy += (i - top) * (self.psi_of(k, top) + 0.5 * (i - top) * float(self.curves[k].derivative()(top)))
+        return abs(psi) * i - coenergy
 
     def closing_force(self, psi):
-        return (self.energy("o", psi) - self.energy("c", psi)) / STROKE
+        return (self.energy("o", psi) - self.energy("c", psi)) / self.stroke
 
 
 @pytest.fixture(scope="module")

@@ -29,6 +29,8 @@ from conftest import BOARDS
 from rail_reference import (assert_staggered_within_limit, firmware_lookup, linear_tail, manifold_copy, readable,
                             simulate_csv)
 
+from test_system_flux import CURVE, _curve, flux_tail
+
 from coildrive.cli import app
 from coildrive.config import load_drive
 
@@ -39,31 +41,44 @@ BOOST = ('max = "28 V"\nboost = "38 V"               # invented: the purge valve
 PERIODS = 30
 
 
-def _folder(folder, efficiency=True, ideal=False):
+def _folder(folder, efficiency=True, ideal=False, eddy=False, curve=False):
     """The manifold with its purge valves' peaks from a 38 V boost capacitor (``ideal``: an
     ideal 38 V source) until 1.2 x the pull-in current (no supply-compensated peak: the
-    boost ends at its threshold)."""
+    boost ends at its threshold); ``eddy``: an invented 1 kohm eddy term across the coil
+    (the threshold rises by the eddy share, V_b,max / R_e = 40 mA); ``curve``: the
+    saturating curve of tests/test_system_flux.py (70 mH at first) for the coil's 70 mH."""
     path = manifold_copy(folder)
     purge = folder / "purge-valve-24v.toml"
     boost = BOOST if efficiency else BOOST.replace("boost_efficiency = 0.85\n", "")
     if ideal:
         boost = "\n".join(x for x in boost.splitlines() if not x.startswith(("boost_capacitance", "boost_power"))) + "\n"
     text = purge.read_text().replace('max = "28 V"\n', boost)
+    if eddy:
+        text = text.replace("[coil]\n", '[coil]\neddy_resistance = "1000 ohm"\n', 1)
+    if curve:
+        text = text.replace('inductance = "70 mH"\n', CURVE, 1)
     purge.write_text(text.replace("compensate = true            # peak ticks looked up against the supply "
                                   "reading\n", "current_margin = 1.2\n"))
     return path
 
 
-@pytest.fixture(scope="module", params=["capacitor", "ideal"])
+@pytest.fixture(scope="module", params=["capacitor", "ideal", "eddy", "curve"])
 def doc(request, tmp_path_factory):
-    path = _folder(tmp_path_factory.mktemp("boostsys"), ideal=request.param == "ideal")
+    path = _folder(tmp_path_factory.mktemp("boostsys"), ideal=request.param == "ideal", eddy=request.param == "eddy",
+                   curve=request.param == "curve")
     r = CliRunner().invoke(app, ["design", str(path), "--json"])
     assert r.exit_code == 0, r.output
     return json.loads(r.stdout)["system"], path
 
 
 def _simulate(drv, d, v, r_f, l_f, v_b, cap, reading, periods=PERIODS, n=30):
-    """One boosted actuation written afresh (module docstring): ``(t, rail current)``."""
+    """One boosted actuation written afresh (module docstring): ``(t, rail current)``. With
+    an eddy term ``R_e`` across the coil the state is the magnetising current ``i_m``: a
+    source ``V`` through ``R`` drives the terminal current ``(V + R_e i_m)/(R + R_e)`` and
+    ``L di_m/dt = R_e (i - i_m)`` (Kirchhoff's laws); off, the diode's path the same with
+    ``-V_d`` through ``R_off`` while that current is positive, else blocked (``L di_m/dt =
+    -R_e i_m``). On a flux-linkage curve ``s L_d(i) di/dt = v - R i`` (scipy's PCHIP
+    through the table, tests/test_system_flux.py's ``_curve``)."""
     from scipy.integrate import solve_ivp
 
     c, b, s = drv.coil, drv.board, drv.supply
@@ -71,6 +86,17 @@ def _simulate(drv, d, v, r_f, l_f, v_b, cap, reading, periods=PERIODS, n=30):
     r_on = r_coil + drv.switch.on_resistance + b.sense.resistance
     r_off = r_coil + b.sense.resistance + drv.freewheel.bypass_resistance
     ind, p, eta = c.inductance * l_f, s.boost_power, s.boost_efficiency
+    r_e = c.eddy_resistance or None
+    ld = _curve(drv) if c.flux_current else None
+    r_peak = r_on + s.boost_resistance
+
+    def terminal(i_m, v_src, r):        # the coil's current driven by v_src through r (A)
+        return i_m if r_e is None else (v_src + r_e * i_m) / (r + r_e)
+
+    def rate(i_m, v_src, r):            # di_m/dt (A/s)
+        if ld is not None:
+            return (v_src - r * i_m) / (l_f * float(ld(max(i_m, 0.0))))
+        return (v_src - r * i_m) / ind if r_e is None else r_e * (terminal(i_m, v_src, r) - i_m) / ind
     trip = d["boost"]["threshold_a"] / reading
     _, duty = firmware_lookup(d, drv, v)
     period = 1 / d["hold"]["frequency_hz"]
@@ -78,11 +104,11 @@ def _simulate(drv, d, v, r_f, l_f, v_b, cap, reading, periods=PERIODS, n=30):
 
     def peak_rhs(_t, y):
         if cap is None:                            # an ideal boost: the source stays at V_b
-            return [(v_b - (r_on + s.boost_resistance) * y[0]) / ind, 0.0]
-        return [(y[1] - (r_on + s.boost_resistance) * y[0]) / ind, (-y[0] + p / y[1]) / cap]
+            return [rate(y[0], v_b, r_peak), 0.0]
+        return [rate(y[0], y[1], r_peak), (-terminal(y[0], y[1], r_peak) + p / y[1]) / cap]
 
     def reached(_t, y):
-        return y[0] - trip
+        return terminal(y[0], y[1], r_peak) - trip
     reached.terminal, reached.direction = True, 1
     sol = solve_ivp(peak_rhs, (0, 1.0), [0.0, v_b], method="LSODA", rtol=1e-10, atol=1e-12, events=reached,
                     dense_output=True)
@@ -92,7 +118,7 @@ def _simulate(drv, d, v, r_f, l_f, v_b, cap, reading, periods=PERIODS, n=30):
     i, v_c = sol.y[0, -1], sol.y[1, -1]
     assert v_c > v, (v, v_c)                       # the main supply's diode blocks in the peak
     if cap is None:       # the converter feeds the coil: V_b i over its efficiency
-        ts.append(tt), rails.append(v_b * sol.sol(tt)[0] / (eta * v))
+        ts.append(tt), rails.append(v_b * terminal(sol.sol(tt)[0], v_b, r_peak) / (eta * v))
         t_full = 0.0
     else:
         ts.append(tt), rails.append(np.full(tt.shape, p / (eta * v)))
@@ -102,35 +128,48 @@ def _simulate(drv, d, v, r_f, l_f, v_b, cap, reading, periods=PERIODS, n=30):
     for _ in range(periods):
         for on, length in ((True, duty * period), (False, (1 - duty) * period)):
             def rhs(_t, y, on=on):
-                return [(v - r_on * y[0]) / ind if on else -(drv.freewheel.diode_drop + r_off * y[0]) / ind]
+                if on:
+                    return [rate(y[0], v, r_on)]
+                if r_e is not None and terminal(y[0], -drv.freewheel.diode_drop, r_off) <= 0:
+                    return [-r_e * y[0] / ind]      # the diode blocks: the flux's current through R_e
+                return [rate(y[0], -drv.freewheel.diode_drop, r_off)]
 
             def zero(_t, y):
                 return y[0]
             zero.terminal, zero.direction = True, -1
             seg = solve_ivp(rhs, (now, now + length), [i], method="LSODA", rtol=1e-10, atol=1e-13,
-                            dense_output=True, events=None if on else zero)
+                            dense_output=True, events=None if on or r_e is not None else zero)
             tt = np.linspace(now, now + length, n)
             cur = np.maximum(seg.sol(np.minimum(tt, seg.t[-1]))[0], 0.0) * (tt <= seg.t[-1])
             ts.append(tt)
-            rails.append((cur if on else 0.0 * cur) + np.where(tt < t_full, p / (eta * v), 0.0))
+            rails.append((terminal(cur, v, r_on) if on else 0.0 * cur) + np.where(tt < t_full, p / (eta * v), 0.0))
             i, now = float(cur[-1]), now + length
     return np.concatenate(ts), np.concatenate(rails)
 
 
 def _branch(t, b):
     """A branch written afresh: a boosted peak's converter plus the coil (the ideal boost
-    rise up to ``coil_top_a``), then the tail plus the converter until ``converter_until_s``;
-    a linear channel's rise and tail."""
+    rise up to ``coil_top_a``; with an eddy term the terminal current ``(V_b + R_e
+    i_m)/(R + R_e)`` on the magnetising current's rise through the Thevenin pair), then the
+    tail plus the converter until ``converter_until_s``; a linear channel's rise and tail."""
     r, ell = b["resistance_ohm"], b["inductance_h"]
     tt = np.maximum(t, 0)
+    if "boost_v" in b:
+        v_b, r_e = b["boost_v"], b.get("eddy_resistance_ohm")
+        if r_e is None:
+            coil = v_b / r * (1 - np.exp(-tt * r / ell))
+        else:
+            coil = (v_b + r_e * v_b / r * (1 - np.exp(-tt * r * r_e / ((r + r_e) * ell)))) / (r + r_e)
+        if "boost_rise_time_s" in b:     # a curve's rise: the next tabulated current up
+            rt, ri = np.array(b["boost_rise_time_s"]), np.array(b["boost_rise_current_a"])
+            coil = ri[np.minimum(np.searchsorted(rt, tt, side="left"), len(rt) - 1)]
+        coil = np.minimum(coil, b["coil_top_a"])
+    tail = flux_tail(t, b) if "tail_flux_wb" in b else linear_tail(t, b)
     if "boost_v" in b and "converter_a" not in b:   # an ideal boost: the converter feeds the coil
-        coil = np.minimum(b["boost_v"] / r * (1 - np.exp(-tt * r / ell)), b["coil_top_a"])
         rise = np.maximum(b["feed_ratio"] * np.minimum(coil, b["feed_end_a"]), coil)
-        tail = linear_tail(t, b)
     elif "boost_v" in b:
-        coil = np.minimum(b["boost_v"] / r * (1 - np.exp(-tt * r / ell)), b["coil_top_a"])
         rise = b["converter_a"] + coil
-        tail = linear_tail(t, b) + np.where(t < b["converter_until_s"], b["converter_a"], 0.0)
+        tail = tail + np.where(t < b["converter_until_s"], b["converter_a"], 0.0)
     else:
         rise, tail = b["supply_v"] / r * (1 - np.exp(-tt * r / ell)), linear_tail(t, b)
     return np.where(t < 0, 0, np.where(t <= b["peak_s"], rise, tail))

@@ -22,7 +22,8 @@
 * **the heat** in the shared freewheel parts and in the board.
 
 A channel is a linear coil, with a moving armature (:mod:`coildrive.model.armature_bound`),
-an eddy term or both, or a flux-linkage curve (:mod:`coildrive.model.flux_bound`), on one
+an eddy term or both, or a flux-linkage curve (:mod:`coildrive.model.flux_bound`; with a
+moving armature over two curves too, :func:`_gap_rise`), on one
 switch or a full bridge, or a latching coil (its pulses: :func:`_latch_bound_params`), or a
 boosted peak (its converter's draw: :func:`_boost_keys`); what is not is refused in one
 line (:func:`_refuse`). A rail with a curve, an eddy term or a bridge on it takes its droop
@@ -99,14 +100,19 @@ def _branch_rise(t, b: dict):
     if "rise_time_s" in b:
         return flux_bound.table_current(t, b["rise_time_s"], b["rise_current_a"])
     if "eddy_resistance_ohm" in b:
-        # the terminal current i = (V + R_e i_m)/(R + R_e) on the magnetising current's bound
-        v, r, r_e = b["supply_v"], b["resistance_ohm"], b["eddy_resistance_ohm"]
-        return np.where(np.asarray(t) < 0, 0.0, (v + r_e * _magnetising_rise(t, b)) / (r + r_e))
+        return _eddy_terminal_rise(t, b)
     if "closing_s" in b:
         return armature_bound.peak_rise(t, b["supply_v"], b["resistance_ohm"], b["inductance_h"],
                                         b["closed_inductance_h"], b["flux_ratio"], b["closing_s"])
     return b["supply_v"] / b["resistance_ohm"] * -np.expm1(
         -np.clip(t, 0.0, None) * b["resistance_ohm"] / b["inductance_h"])
+
+
+def _eddy_terminal_rise(t, b: dict):
+    """The bound (A) of an eddy branch's terminal current ``t`` s after switch-on: ``i =
+    (V + R_e i_m)/(R + R_e)`` on the magnetising current's bound (:func:`_magnetising_rise`)."""
+    v, r, r_e = b["supply_v"], b["resistance_ohm"], b["eddy_resistance_ohm"]
+    return np.where(np.asarray(t) < 0, 0.0, (v + r_e * _magnetising_rise(t, b)) / (r + r_e))
 
 
 def _magnetising_rise(t, b: dict):
@@ -128,9 +134,10 @@ def _branch_parts(t, b: dict):
     age = np.clip(t - b["peak_s"] - b["pwm_period_s"], 0.0, None)
     if "tail_flux_wb" in b:     # a saturating coil: the flux excess left (model/flux_bound.py)
         left = b["tail_flux_wb"][-1] * np.exp(-age * b["slow_resistance_ohm"] / b["tail_inductance_h"][0])
-        return rise, flux_bound.table_current(left, b["tail_flux_wb"], b["tail_current_a"])
-    tail = b["hold_top_a"] + np.max([e * np.exp(-age * b["slow_resistance_ohm"] / l)
-                                     for e, l in zip(b["excess_a"], b["tail_inductance_h"])], axis=0)
+        tail = flux_bound.table_current(left, b["tail_flux_wb"], b["tail_current_a"])
+    else:
+        tail = b["hold_top_a"] + np.max([e * np.exp(-age * b["slow_resistance_ohm"] / l)
+                                         for e, l in zip(b["excess_a"], b["tail_inductance_h"])], axis=0)
     if "tail_cap_a" in b:             # a closed loop's: never above its clamp's top (_two_period_top)
         tail = np.minimum(tail, b["tail_cap_a"])
     if "converter_until_s" in b:      # a boosted peak's converter, recharging its capacitor
@@ -208,7 +215,8 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
     over the orbit's bottom is taken against the lowest bottom in the range (its lowest
     supply and readable duty, the hottest coil of the design's corners). With a moving
     armature the peak's rise is :func:`_armature_rise`'s (the open coil's while the armature
-    is proved to only close) and the tail is the seated coil's, one part. A latching
+    is proved to only close) and the tail is the seated coil's, one part; over two curves
+    :func:`_gap_rise`'s, the tail the seated curve's. A latching
     coil's: :func:`_latch_bound_params`."""
     if is_latch(d):
         return _latch_bound_params(d)
@@ -291,10 +299,24 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             r_low = np.minimum(top_cold.r_on, top_cold.r_off)
             r_slow_eddy = float(np.min(r_eddy * r_low / (r_low + r_eddy)))
         if drive.supply.boosted:
-            branch.update(_boost_keys(d, hi, r_on, l_min, hold_top, bottom, reading_droop_v))
+            branch.update(_boost_keys(d, hi, r_on, l_min, hold_top, bottom, reading_droop_v, r_eddy,
+                                      None if curve is None else flux.FluxCoil(curve, float(scale.min()))))
+            # with an eddy term the end current (terminal) is above the magnetising one,
+            # whose excess decays at the slowest Thevenin rate
             i_pe = np.array([d.boost.end_current_max_a])
             ends = np.array([l_min, l_max])
             peak_end["a"] = float(_branch_rise(tp, branch))
+            if r_eddy is not None:
+                r_slow = r_slow_eddy
+            if curve is not None:
+                # the tail on the flux from the end current, as a curve branch's (below)
+                ripple = hi * (d.hold.thresholds.delay_s if current is not None else float(np.max(duty_hi)) / f)
+                tail = flux_bound.tail_excess(curve, d.boost.end_current_max_a, hold_top,
+                                              ripple / float(scale.min()))
+                branch.update({"tail_flux_wb": [float(x) for x in tail["table"][0]],
+                               "tail_current_a": [float(x) for x in tail["table"][1]]})
+                i_pe = np.array([bottom + tail["excess_a"]])
+                ends = np.array([l_min, tail["l_max_h"] * float(scale.max())])
         elif drive.armature is not None and r_eddy is not None:
             # the armature's bound on the magnetising current, which sees the Thevenin pair
             # (the closing window and the earliest start on it); the rail the terminal current
@@ -305,7 +327,7 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             r_slow = r_slow_eddy
             peak_end["a"] = float(_branch_rise(tp, branch))
             i_pe, ends = np.array([float(_magnetising_rise(tp, branch))]), np.array([l_min, l_max])
-        elif drive.armature is not None:
+        elif drive.armature is not None and curve is None:
             branch.update(_armature_rise(drive.armature, hi, r_on, l_min, l_max, tp))
             # the peak's end current is bounded at the open gap, its decay at the seated
             # coil's highest inductance: one part
@@ -339,6 +361,12 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             # the exact rise at the lowest scale, tabulated; the tail's excess and decay on
             # the flux (model/flux_bound.py): one part
             times, currents = flux_bound.rise_table(flux.FluxCoil(curve, float(scale.min())), hi, r_on, tp)
+            seated_end = float(currents[-1])     # the flux at the peak's end is at most this one's
+            if drive.armature is not None:
+                # a moving armature over two curves (``curve`` the seated one): the open
+                # curve's rise until it can start, then the seated flux with the gap opened
+                # at once (model/flux_bound.py, gap_rise_table); the tail the seated coil's
+                times, currents = _gap_rise(drive.armature, curve, scale, hi, r_on, tp)
             branch.update({"rise_time_s": [float(x) for x in times], "rise_current_a": [float(x) for x in currents]})
             if current is not None:
                 # hysteretic: on for at most the delay after the peak, then off down to the
@@ -347,7 +375,7 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
                 ripple = hi * d.hold.thresholds.delay_s / float(scale.min())
             else:
                 ripple = hi * float(np.max(duty_hi)) / f / float(scale.min())
-            tail = flux_bound.tail_excess(curve, float(currents[-1]), hold_top, ripple)
+            tail = flux_bound.tail_excess(curve, seated_end, hold_top, ripple)
             branch.update({"tail_flux_wb": [float(x) for x in tail["table"][0]],
                            "tail_current_a": [float(x) for x in tail["table"][1]],
                            "top_a": max(float(currents[-1]), tail["reach_a"])})
@@ -448,7 +476,7 @@ def _latch_heat(name: str, d) -> dict:
 
 
 def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bottom: float,
-                reading_droop_v: float) -> dict:
+                reading_droop_v: float, r_eddy: float | None = None, curve=None) -> dict:
     """The keys a boosted peak's branch adds (docs/design-method.md, "A boosted peak"): the
     coil's current from switch-on is at most the rise ``V_b/R (1 - exp(-t R/L))`` from the
     boost at its highest through the coldest on-loop (the capacitor's voltage only falls,
@@ -464,17 +492,52 @@ def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bott
     (``[supply] min`` less the reading's droop, ``reading_droop_v``): with a capacitor a
     constant ``boost_power`` from switch-on until the energy one peak takes is back
     (``converter_until_s``: the time-out plus the recharge time), with an ideal boost the
-    coil's current times ``V_b`` while the peak runs from it."""
+    coil's current times ``V_b`` while the peak runs from it.
+
+    With an eddy term ``r_eddy`` (ohm, across the magnetising branch) the coil's current
+    is the terminal one, ``(V + R_e i_m)/(R + R_e)`` while a source ``V`` drives it (below
+    ``i_m`` while it is off): from switch-on on the magnetising current's rise from the
+    boost at its highest through the Thevenin pair (``V_b R_e/(R + R_e)``, ``R R_e/(R +
+    R_e)``); after the trip the magnetising current -- at most the end current, which the
+    terminal current leads while it rises -- is under the voltage-mode hold's PWM at most
+    the larger of its orbit's top and :func:`_two_period_top` on that pair, and
+    ``coil_top_a`` the terminal current there at ``v_hi``. The converter's draw is the
+    same: the energy one peak takes from the capacitor (the design's ``boost.energy_j``,
+    the eddy resistance's share included) sets its recharge time.
+
+    On a flux-linkage curve (``curve``: its :class:`~coildrive.model.flux.FluxCoil` at the
+    lowest scale ``s``) the exponential is no bound (the saturating coil rises faster than
+    its small-signal inductance lets the linear one): the rise is the curve's exact one from
+    the boost at its highest through the coldest on-loop (``boost_rise_time_s`` /
+    ``boost_rise_current_a``, :func:`~coildrive.model.flux_bound.rise_table`), and under a
+    voltage-mode hold the period map on the flux is increasing and contracting too, each
+    period adding at most ``V T / s``: ``coil_top_a`` the larger of the hold's top and
+    ``psi^-1(psi(I_end) + 2 V T / s)``."""
     drive = d.drive
     s, bst = drive.supply, d.boost
     v_low = max(s.min - reading_droop_v, 1e-3)
     i_end = bst.end_current_max_a
+    period = 1.0 / d.hold.frequency_hz
     if d.hold.mode == "current":
         coil_top = hold_top + max(0.0, i_end - bottom)
+    elif curve is not None:
+        c = curve.curve
+        reach = c.current_of(float(c.psi(i_end)) + 2.0 * v_hi * period / float(curve.scale))
+        coil_top = max(hold_top, float(np.asarray(reach).ravel()[0]))
+    elif r_eddy is not None:
+        top_m = _two_period_top(i_end, v_hi * r_eddy / (r_on + r_eddy), r_on * r_eddy / (r_on + r_eddy), l_min, period)
+        coil_top = max(hold_top, (v_hi + r_eddy * top_m) / (r_on + r_eddy))
     else:
-        coil_top = max(hold_top, _two_period_top(i_end, v_hi, r_on, l_min, 1.0 / d.hold.frequency_hz))
+        coil_top = max(hold_top, _two_period_top(i_end, v_hi, r_on, l_min, period))
     out = {"boost_v": bst.boost_max_v, "resistance_ohm": r_on, "inductance_h": l_min, "coil_top_a": coil_top,
            "boost_efficiency": s.boost_efficiency}
+    if r_eddy is not None:
+        out["eddy_resistance_ohm"] = r_eddy
+    if curve is not None:
+        times, currents = flux_bound.rise_table(curve, bst.boost_max_v, r_on,
+                                                d.pull_in.peak_ticks / drive.board.tick.rate)
+        out.update({"boost_rise_time_s": [float(x) for x in times],
+                    "boost_rise_current_a": [float(x) for x in currents]})
     if bst.capacitance_f > 0:
         converter = bst.power_w / (s.boost_efficiency * v_low)
         out.update({"converter_a": converter, "converter_until_s": d.pull_in.peak_ticks / drive.board.tick.rate
@@ -505,8 +568,14 @@ def _boost_rise(t, b: dict):
     while the capacitor feeds it); with an ideal boost, the larger of the converter feeding
     the coil and the coil's own current. Non-decreasing in ``t``."""
     t = np.asarray(t, float)
-    coil = np.minimum(b["boost_v"] / b["resistance_ohm"] * -np.expm1(-np.clip(t, 0.0, None) * b["resistance_ohm"]
-                                                                       / b["inductance_h"]), b["coil_top_a"])
+    if "boost_rise_time_s" in b:     # a curve's exact rise, tabulated
+        coil = flux_bound.table_current(t, b["boost_rise_time_s"], b["boost_rise_current_a"])
+    elif "eddy_resistance_ohm" in b:   # the terminal current on the magnetising current's rise
+        coil = _eddy_terminal_rise(t, {**b, "supply_v": b["boost_v"]})
+    else:
+        coil = b["boost_v"] / b["resistance_ohm"] * -np.expm1(-np.clip(t, 0.0, None) * b["resistance_ohm"]
+                                                             / b["inductance_h"])
+    coil = np.minimum(coil, b["coil_top_a"])
     if "converter_a" in b:
         got = b["converter_a"] + coil
     else:
@@ -529,6 +598,23 @@ def _armature_rise(arm, supply: float, r_on: float, lc_low: float, lc_high: floa
     closing = start + armature_bound.closing_window(arm.mass, arm.damping, arm.spring_rate, arm.restitution)
     return {"inductance_h": lc_low / ratio, "closed_inductance_h": lc_low, "flux_ratio": ratio,
             "closing_s": min(closing, peak_s)}
+
+
+def _gap_rise(arm, seated, scale, v: float, r: float, peak_s: float):
+    """``(times s, currents A)``: the rise bound of a moving armature over two curves
+    (:func:`~coildrive.model.flux_bound.gap_rise_table`), ``seated`` the seated curve,
+    ``scale`` the tolerance scales, at ``v`` V through the coldest on-loop's ``r`` ohm over
+    a peak ``peak_s`` s long; the open stop is left no sooner than
+    :func:`~coildrive.model.flux_bound.earliest_start` (preload + load against the closing
+    force at the highest scale, the open curve's fastest rise), and the armature only
+    closes for :func:`~coildrive.model.armature_bound.closing_window` after that (the
+    closing force grows with the flux linkage alone, as the linear coil's does)."""
+    opened = flux.curve(arm.open_current, arm.open_linkage)
+    low, high = float(np.min(scale)), float(np.max(scale))
+    start = flux_bound.earliest_start(opened, seated, low, high, arm.stroke, arm.spring_preload + arm.load_force,
+                                      v, r)
+    closing = start + armature_bound.closing_window(arm.mass, arm.damping, arm.spring_rate, arm.restitution)
+    return flux_bound.gap_rise_table(opened, seated, low, v, r, peak_s, start, closing)
 
 
 def _eddy_curve_branch(coil, v: float, r: float, r_e: float, peak_s: float, top_m: float,
@@ -1054,21 +1140,24 @@ def rail_curves(result: SystemResult, points: int = 6000) -> list[dict]:
 
 def _refuse(system: System, ch) -> None:
     """What the rail's current bound is made for: a linear coil (with a moving armature,
-    an eddy term or both) or a flux-linkage curve (no armature), on one switch or a full
-    bridge, under a voltage-mode (fixed, supply-table or closed-loop) hold or a
-    current-mode one, or a latching coil, or a boosted peak. Anything else is refused in
-    one line: a curve with a moving armature (the closing armature's current is not proved
-    to stay under the open curve's rise, docs/design-method.md, "A flux-linkage curve"), a
-    boosted peak with an eddy term or a bouncing armature (``restitution``: a rebound's
+    an eddy term or both) or a flux-linkage curve (with a moving armature over two curves
+    too), on one switch or a full bridge, under a voltage-mode (fixed, supply-table or
+    closed-loop) hold or a current-mode one, or a latching coil, or a boosted peak.
+    Anything else is refused in one line: a moving armature over two curves with an eddy
+    term or a boosted peak (its bound takes the coil's own terminal voltage), a boosted
+    peak with an eddy term on a curve or with a moving armature (the eddy term's bound takes
+    a still coil), a boosted peak with a bouncing armature (``restitution``: a rebound's
     motional term drives the current past the boost's rise, :func:`_boost_keys`), a latching
     coil's pulses from the boost, and a boosted peak without ``supply.boost_efficiency`` (its
     converter's draw)."""
     d = ch.drive
     why = None
-    if d.coil.flux_current and d.armature is not None:
-        key, why = "armature", "a moving armature with a flux-linkage curve"
-    elif d.supply.boosted and d.coil.eddy_resistance:
-        key, why = "supply.boost", "a boosted peak with an eddy-current term"
+    if d.coil.flux_current and d.armature is not None and (d.coil.eddy_resistance or d.supply.boosted):
+        key, why = "armature", ("a moving armature over flux-linkage curves with an eddy-current term or a "
+                                "boosted peak")
+    elif d.supply.boosted and d.coil.eddy_resistance and (d.coil.flux_current or d.armature is not None):
+        key, why = "supply.boost", ("a boosted peak with an eddy-current term on a flux-linkage curve or with a "
+                                    "moving armature")
     elif d.supply.boosted and d.armature is not None and d.armature.restitution > 0:
         key, why = "armature.restitution", ("a boosted peak with a bouncing armature (a rebound drives the "
                                             "current past the boost's rise the rail's bound takes)")
@@ -1081,9 +1170,11 @@ def _refuse(system: System, ch) -> None:
     if why is not None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
                          "in a system yet; expected a linear coil (with an [armature], an eddy term or both) "
-                         "or a flux-linkage curve (no [armature]), one switch or a full bridge and a voltage-mode "
-                         "fixed, supply-table, closed-loop or current-mode hold, or a latching coil (not from a "
-                         "boost); a boosted peak without an eddy term or a bouncing armature")
+                         "or a flux-linkage curve (with an eddy term, or with an [armature] and no eddy term), "
+                         "on one switch or a full bridge under a voltage-mode fixed, supply-table, closed-loop "
+                         "or current-mode hold, or a latching coil (not from a boost); a boosted peak on a linear "
+                         "coil (an eddy term without an [armature]; no bouncing armature) or on a curve with "
+                         "neither an eddy term nor an [armature]")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:

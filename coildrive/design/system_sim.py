@@ -8,10 +8,11 @@ timer's, counting from 0 s, the first channel's switch-on), off at its own compa
 rail's current is the sum of the switches' currents (a coil's current while its switch
 conducts, and while it decays through a clamp across its switch, which takes it from the
 rail). On a rail with the system's source resistance and capacitance whose channels are
-all linear coils on one switch with voltage-mode holds and a path across the coil, the
-bus droops and its droop is fed back into the coils, exact between switching moments
-(:func:`coildrive.model.shared_bus.on_bus`; ``SystemRun.bus``); any other rail runs on
-a stiff bus (``SystemRun.stiff`` says why).
+all linear coils on voltage-mode holds, on one switch with a path across the coil (an
+eddy term too) or on a full bridge with slow decay, the bus droops and its droop is fed back into the coils, exact between
+switching moments (:func:`coildrive.model.shared_bus.on_bus` on each channel's
+:func:`bus_run`; ``SystemRun.bus``); any other rail runs on a stiff bus
+(``SystemRun.stiff`` says why).
 
 A current-mode channel runs its own actuation
 (:func:`coildrive.design.hold_current.current_mode_actuation`: the nominal thresholds
@@ -43,9 +44,9 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..model.circuit import full_bridge, loop, split_decay
-from ..model.shared_bus import on_bus
-from ..model.shared_pwm import HOLD_OFF, RELEASE, ChannelRun, channel_run
-from ..model.waveform import actuation
+from ..model.shared_bus import BusRun, on_bus
+from ..model.shared_pwm import HOLD_OFF, ON, RELEASE, ChannelRun, channel_run
+from ..model.waveform import EDGE, Waveform, actuation
 from .firmware import firmware_setting
 from .hold_current import current_mode_actuation
 from .system import is_latch
@@ -180,36 +181,84 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
         if not rail_row.get("source_resistance_ohm"):
             continue
         ks = [n for n, c in enumerate(result.channels) if c.name in rail_row["channels"]]
-        why = _stiff_reason([result.channels[n] for n in ks], [runs[n] for n in ks])
+        fed = [bus_run(result.channels[n].design.drive, runs[n], starts[n], supply, coil_temp, r_factor, l_factor)
+               for n in ks]
+        why = _stiff_reason([result.channels[n] for n in ks], fed)
         if why is not None:
             stiff.append(f"rail {', '.join(rail_row['channels'])}: {why}")
             continue
-        cur, bus = on_bus(supply, rail_row["source_resistance_ohm"], rail_row["capacitance_f"],
-                          [runs[n] for n in ks], t)
+        cur, bus = on_bus(supply, rail_row["source_resistance_ohm"], rail_row["capacitance_f"], fed, t)
         for p, n in enumerate(ks):
             current[n] = cur[p]
-            draw[n] = cur[p] * on[n]
+            # a full bridge's fast decay returns its current into the rail: negative
+            back = (fed[p].kind_at(t) == RELEASE) & (cur[p] > 0) if fed[p].returns else 0.0
+            draw[n] = cur[p] * on[n] - cur[p] * back
         buses["bus_v" if len(result.rails) == 1 else f"bus_{rail_row['channels'][0]}_v"] = bus
     rail = np.sum(draw, axis=0)
     return SystemRun([c.name for c in result.channels], t, rail, current, on, runs, periods, duties,
                      draw, starts, buses, stiff)
 
 
-def _stiff_reason(channels, runs) -> str | None:
+def _stiff_reason(channels, fed) -> str | None:
     """Why a drooping rail's channels run on the stiff bus, or ``None`` when the bus's
-    droop is fed back into them (:func:`coildrive.model.shared_bus.on_bus`: linear coils
-    on one switch, voltage-mode holds, a freewheel path across the coil)."""
-    for c, r in zip(channels, runs):
-        if not isinstance(r, ChannelRun):
+    droop is fed back into them (:func:`coildrive.model.shared_bus.on_bus`: linear coils,
+    an eddy term too, on one switch, voltage-mode holds, a freewheel path across the coil;
+    ``fed``: each channel's :func:`bus_run`)."""
+    for c, r in zip(channels, fed):
+        if r is None:
             what = ("a latching coil" if is_latch(c.design) else
                     "a current-mode hold" if c.design.hold.mode == "current" else
                     "a boosted peak" if c.design.drive.supply.boosted else
-                    "a moving armature, a flux-linkage curve, an eddy term or a full bridge")
+                    "a moving armature, a flux-linkage curve, or a full bridge with an eddy term or "
+                    "a mixed-decay hold")
             return f"channel {c.name!r} has {what}: the bus is taken stiff (its droop is the design's)"
         if c.design.drive.freewheel.type == "clamp":
             return (f"channel {c.name!r} decays through a clamp across its switch, from the rail: the "
                     "bus is taken stiff (its droop is the design's)")
     return None
+
+
+def bus_run(drive, run, start: float, supply: float, coil_temp: float, r_factor: float,
+            l_factor: float) -> BusRun | None:
+    """A channel as the drooping bus feeds it (:class:`~coildrive.model.shared_bus.BusRun`):
+    a linear coil on one switch under a voltage-mode hold (its
+    :class:`~coildrive.model.shared_pwm.ChannelRun`), or with an eddy term, or on a full
+    bridge with slow decay (its own actuation's switching moments, the run's ``switch_on``
+    and split decay's ``bypass_on``: on, the hold's path while off before the final
+    turn-off or while the bypass conducts, the release path after -- a bridge's fast decay,
+    returning into the bus over its two diode drops; the loop's (magnetising) inductance
+    and eddy resistance at ``supply`` V, ``coil_temp`` degC and the tolerance factors);
+    ``None`` for anything else (:func:`_stiff_reason` says why)."""
+    if isinstance(run, ChannelRun):
+        return BusRun.of(run)
+    bridge = full_bridge(drive)
+    if not (isinstance(run, Waveform) and (drive.coil.eddy_resistance or bridge) and not drive.coil.flux_current
+            and drive.armature is None and not (bridge and (drive.coil.eddy_resistance or drive.hold.fast_fraction))
+            and drive.hold.mode != "current" and not drive.supply.boosted):
+        return None
+    lp = loop(drive, supply, coil_temp, r_factor, l_factor)
+    rel = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
+    after = np.append(run.time[1:] != run.time[:-1], True)       # the value after a step
+    tw, sw = run.time[after] + start, run.switch_on[after]
+    last_on = int(np.flatnonzero(sw)[-1])
+    bypass = np.zeros(len(tw), np.int8) if run.bypass_on is None else run.bypass_on[after]
+    if bridge:       # all four open after the final turn-off: the fast decay
+        kind = np.where(sw == 1, ON, np.where(np.arange(len(tw)) < last_on, HOLD_OFF, RELEASE))
+    else:
+        kind = np.where(sw == 1, ON, np.where((np.arange(len(tw)) < last_on) | (bypass == 1), HOLD_OFF, RELEASE))
+    # a segment starts at its first row; a turn-off at the on-time's last row (on-segments
+    # closed), and with an eddy term the row after a switch-on sits EDGE s after it
+    # (model/waveform.py): the row before it then
+    first = np.flatnonzero(np.append(True, kind[1:] != kind[:-1]))
+    prev = np.maximum(first - 1, 0)
+    before = (kind[prev] == ON) | ((kind[first] == ON) & (tw[first] - tw[prev] <= 1.5 * EDGE))
+    edges = np.where(before & (first > 0), tw[prev], tw[first])
+    coil = lp.inductance
+    if bridge:       # the fast decay into the bus through the two body diodes
+        return BusRun(edges, kind[first], float(lp.r_on), float(lp.r_off), float(lp.v_off), float(rel.r_off),
+                      float(rel.v_off) - supply, float(coil), returns=True)
+    return BusRun(edges, kind[first], float(lp.r_on), float(lp.r_off), float(lp.v_off), float(rel.r_off),
+                  float(rel.v_off), float(coil.magnetising), float(coil.resistance))
 
 
 @dataclass(frozen=True)
@@ -299,7 +348,8 @@ def driver_peak(offset: float, peak: float, period: float) -> tuple[float, float
 def on_grid(w, start: float, t: np.ndarray) -> tuple[np.ndarray, ...]:
     """A single-channel :class:`~coildrive.model.waveform.Waveform` switched on at ``start``
     s, on the grid ``t`` (s): its current (A; linear between its samples, after a step at a
-    repeated time, 0 outside the run), its switch state (0/1, the sample at or before), 1
+    repeated time, 0 outside the run), its switch state (0/1: a row's own, between two rows
+    on where both are), 1
     where a full bridge's four switches are all open with current flowing (the fast decay
     returning it to the rail), else 0, and split decay's bypass switch (0/1; 0 without one)."""
     tw = w.time + start
@@ -308,7 +358,13 @@ def on_grid(w, start: float, t: np.ndarray) -> tuple[np.ndarray, ...]:
     k = np.clip(np.searchsorted(tw, t, side="right") - 1, 0, len(tw) - 1)
     inside = (t >= tw[0]) & (t <= tw[-1])
     i = np.where(inside, np.interp(t, tw, cur), 0.0)
-    sw = np.where(inside, w.switch_on[last][k], 0).astype(np.int8)
+    # on-segments are closed: a row at a switch edge is on, so between two rows the switch
+    # is on only where both are (a turn-off's last on row, then the off-time's first; of
+    # rows at one instant the last before and the first after)
+    raw = w.time + start
+    j = np.clip(np.searchsorted(raw, t, side="right") - 1, 0, len(raw) - 1)
+    between = w.switch_on[j] & w.switch_on[np.minimum(j + 1, len(raw) - 1)]
+    sw = np.where(inside, np.where(raw[j] == t, w.switch_on[j], between), 0).astype(np.int8)
     back = np.zeros(len(t), np.int8)
     if w.switches is not None:
         open_all = np.all([s[last][k] == 0 for s in w.switches.values()], axis=0)

@@ -21,11 +21,17 @@ so ``x(t) = x_ss + e^{A t} (x(0) - x_ss)``, evaluated through the eigen-decompos
 peak's end and joins it at zero current. One coil is the 2x2 system of
 :mod:`coildrive.model.supply`, which the tests compare. :func:`lowest_bus_pwm` keeps the
 coils in the state after their peaks too: each PWM on-time of the shared timer puts a
-coil back on the bus, and while off it freewheels in its own loop down to zero. Units
-A, V, ohm, H, F, s.
+coil back on the bus, and while off it freewheels in its own loop down to zero.
+:func:`on_bus` runs every channel's whole actuation on the bus (:class:`BusRun`): a coil
+with an eddy resistance across it keeps its magnetising current in the state (still
+linear), and a full bridge's fast decay returns its current into the bus until its
+diodes block. Units A, V, ohm, H, F, s.
 """
 
 from __future__ import annotations
+
+import math
+from dataclasses import dataclass
 
 import numpy as np
 
@@ -36,16 +42,30 @@ PIECE_SAMPLES = 2000
 GOLDEN_STEPS = 60
 
 
-def _piece(v_s, r_s, c, r, l):
-    """``(eigenvalues, eigenvectors, their inverse, steady state)`` of the system with the
-    coils ``r``, ``l`` (arrays, possibly empty) on the bus."""
+def _on_matrix(r_s, c, r, l, share=None):
+    """``A`` of the coils ``r``, ``l`` on the bus (the bus last). ``share`` per coil: ``g =
+    R_e/(R + R_e)`` with an eddy resistance ``R_e`` across its magnetising branch (1 without):
+    its state is the magnetising current ``i_m``, the terminal current ``(v + R_e i_m)/(R +
+    R_e) = g i_m + (1 - g) v/R`` the bus feeds, and ``L di_m/dt = g (v - R i_m)``."""
     m = len(r)
+    g = np.ones(m) if share is None else np.asarray(share, float)
     a = np.zeros((m + 1, m + 1))
     for k in range(m):
-        a[k, k] = -r[k] / l[k]
-        a[k, m] = 1.0 / l[k]
-        a[m, k] = -1.0 / c
-    a[m, m] = -1.0 / (r_s * c)
+        a[k, k] = -g[k] * r[k] / l[k]
+        a[k, m] = g[k] / l[k]
+        a[m, k] = -g[k] / c
+        a[m, m] -= (1.0 - g[k]) / (r[k] * c)
+    a[m, m] -= 1.0 / (r_s * c)
+    return a
+
+
+def _piece(v_s, r_s, c, r, l, share=None):
+    """``(eigenvalues, eigenvectors, their inverse, steady state)`` of the system with the
+    coils ``r``, ``l`` (arrays, possibly empty; ``share``: :func:`_on_matrix`'s) on the bus.
+    At the steady state each magnetising current is ``v/R`` (the inductance a short across
+    any eddy resistance)."""
+    m = len(r)
+    a = _on_matrix(r_s, c, r, l, share)
     lam, vec = np.linalg.eig(a)
     # steady state: v = V_s / (1 + R_s sum 1/R_k), i_k = v / R_k
     v_ss = v_s / (1.0 + r_s * float(np.sum(1.0 / np.asarray(r)))) if m else v_s
@@ -199,6 +219,70 @@ def lowest_bus_pwm(v_s: float, r_s: float, c: float, r_on, r_off, v_off, l, on, 
     return best[0], best[1]
 
 
+@dataclass(frozen=True)
+class BusRun:
+    """One channel as :func:`on_bus` switches it: its segments' start times ``start`` (s)
+    and kinds ``kind`` (:mod:`coildrive.model.shared_pwm`'s ``ON``, ``HOLD_OFF``,
+    ``RELEASE``), the on-loop's ``r_on`` ohm, the hold's off path ``r_off`` ohm against
+    ``v_off`` V, the release path's ``r_rel`` ohm against ``v_rel`` V (paths across the
+    coil), the (magnetising) inductance ``ind`` H and an eddy resistance across it
+    ``r_eddy`` ohm (``inf``: none). ``returns``: the release returns the current into the
+    bus (a full bridge's fast decay through two body diodes: ``L di/dt = -(v + v_rel) -
+    r_rel i``, ``v_rel`` the two diode drops, the capacitor taking ``+i``) until it is
+    zero, where the diodes block."""
+
+    start: np.ndarray
+    kind: np.ndarray
+    r_on: float
+    r_off: float
+    v_off: float
+    r_rel: float
+    v_rel: float
+    ind: float
+    r_eddy: float = math.inf
+    returns: bool = False
+
+    @classmethod
+    def of(cls, run) -> "BusRun":
+        """A plain coil's :class:`~coildrive.model.shared_pwm.ChannelRun` on the bus."""
+        return cls(run.start, run.kind, run.r_on, run.r_off, run.v_off, run.r_rel, run.v_rel, run.ind)
+
+    def kind_at(self, t) -> np.ndarray:
+        """The segment's kind at the times ``t`` (s; a time at a switching moment: the one
+        before it, as :func:`on_bus`'s samples); -1 before the switch-on."""
+        k = np.searchsorted(self.start, np.asarray(t, float), side="left") - 1
+        return np.where(k >= 0, self.kind[np.clip(k, 0, None)], -1)
+
+    @property
+    def share(self) -> float:
+        """``R_e/(R_on + R_e)`` (1 without an eddy term)."""
+        return 1.0 if math.isinf(self.r_eddy) else self.r_eddy / (self.r_on + self.r_eddy)
+
+    def decay(self, i0: float, r_p: float, v_p: float, dt) -> tuple[np.ndarray, np.ndarray]:
+        """``(magnetising, terminal)`` currents (A) ``dt`` s into a freewheel through the
+        path ``r_p`` ohm against ``v_p`` V from ``i0`` A (closed form: the path does not see
+        the bus). Without an eddy term the plain decay, held at zero. With ``R_e``: while the
+        path conducts (``R_e i_m > v_p``) ``L di_m/dt = -g (R_p i_m + v_p)`` (``g = R_e/(R_p +
+        R_e)``), the terminal current ``(R_e i_m - v_p)/(R_p + R_e)``; from ``i_m = v_p/R_e``
+        the diode blocks and the flux's current decays through ``R_e`` alone, ``L di_m/dt =
+        -R_e i_m``, the terminal current 0."""
+        dt = np.asarray(dt, float)
+        if math.isinf(self.r_eddy):
+            x = np.maximum((i0 + v_p / r_p) * np.exp(-dt * r_p / self.ind) - v_p / r_p, 0.0)
+            return x, x
+        r_e = self.r_eddy
+        g = r_e / (r_p + r_e)
+        block = v_p / r_e
+        if i0 > block:
+            t_b = self.ind / (g * r_p) * math.log((i0 + v_p / r_p) / (block + v_p / r_p))
+            live = (i0 + v_p / r_p) * np.exp(-dt * g * r_p / self.ind) - v_p / r_p
+        else:
+            t_b, live = 0.0, np.full(dt.shape, i0)
+        start = min(i0, block)
+        x = np.where(dt < t_b, live, start * np.exp(-np.maximum(dt - t_b, 0.0) * r_e / self.ind))
+        return x, np.where(dt < t_b, np.maximum((r_e * x - v_p) / (r_p + r_e), 0.0), 0.0)
+
+
 #: Largest condition number of a piece's eigenvector matrix evaluated through the
 #: eigen-decomposition; past it (nearly equal but unequal time constants) each sample is
 #: the matrix exponential itself (scipy.linalg.expm), slower but exact to rounding.
@@ -206,20 +290,23 @@ EIG_CONDITION = 1e8
 
 
 def on_bus(v_s: float, r_s: float, c: float, runs, t) -> tuple[np.ndarray, np.ndarray]:
-    """``(currents, bus)``: the channels' coil currents (A, one row per run) and the bus
-    (V) at the times ``t`` (s, ascending), each channel switched as its
-    :class:`~coildrive.model.shared_pwm.ChannelRun` says (its switching moments are the
-    timer's and its peak's: they do not depend on the bus) but fed from the bus ``v(t)``
-    behind ``r_s`` ohm and ``c`` F from ``v_s`` V instead of a stiff one. While its
-    switch conducts a coil is on the bus (``L di/dt = v - R_on i``); in its hold's
-    off-times and its release it freewheels in its own loop (a path across the coil: a
-    diode, a Zener or a resistor) and draws nothing, down to zero and held there (closed
-    form: the path does not see the bus). Between two switching moments of any channel
+    """``(currents, bus)``: the channels' coil currents (A, one row per run; the terminal
+    current with an eddy term) and the bus (V) at the times ``t`` (s, ascending), each
+    channel switched as its :class:`BusRun` says (its switching moments are the timer's
+    and its peak's: they do not depend on the bus) but fed from the bus ``v(t)`` behind
+    ``r_s`` ohm and ``c`` F from ``v_s`` V instead of a stiff one. While its switch
+    conducts a coil is on the bus (``L di/dt = v - R_on i``; with an eddy term
+    :func:`_on_matrix`'s magnetising current); in its hold's off-times and its release it
+    freewheels in its own loop (a path across the coil: a diode, a Zener or a resistor)
+    and draws nothing, down to zero and held there (closed form: the path does not see
+    the bus; :meth:`BusRun.decay`). Between two switching moments of any channel
     the coils on the bus and the capacitor are the linear system of the module docstring,
     solved exactly through its eigen-decomposition (or the matrix exponential where that
     is ill-conditioned, :data:`EIG_CONDITION`). The bus starts at ``v_s`` (the capacitor
-    charged), every coil at zero before its run's start."""
-    from .shared_pwm import HOLD_OFF, ON
+    charged), every coil at zero before its run's start; a sample at a switching moment
+    has the value just before it (a step, with an eddy term, comes after it), but at a
+    run's own switch-on the value after it (its first)."""
+    from .shared_pwm import HOLD_OFF, ON, RELEASE
 
     t = np.asarray(t, float)
     n = len(runs)
@@ -227,49 +314,127 @@ def on_bus(v_s: float, r_s: float, c: float, runs, t) -> tuple[np.ndarray, np.nd
     bus = np.full(len(t), float(v_s))
     moments = np.unique(np.concatenate([r.start for r in runs] + [[t[-1]]]))
     moments = moments[moments <= t[-1]]
-    state = np.zeros(n)            # each coil's current at the piece's start
+    state = np.zeros(n)            # each coil's (magnetising) current at the piece's start
+    after = np.zeros(n)            # its terminal current at the last piece's end
     v = float(v_s)
-    for a_t, b_t in zip(moments[:-1], moments[1:]):
-        lo, hi = np.searchsorted(t, a_t, side="left"), np.searchsorted(t, b_t, side="left")
-        dt = np.append(t[lo:hi] - a_t, b_t - a_t)     # the piece's samples, then its end
-        active, off = [], []
+    pieces = list(zip(moments[:-1], moments[1:]))
+    while pieces:
+        a_t, b_t = pieces.pop(0)
+        # the piece's samples after its start up to its end (a sample at a switching moment
+        # has the value before it: an eddy term's terminal current steps there), then its end
+        lo, hi = np.searchsorted(t, a_t, side="right"), np.searchsorted(t, b_t, side="right")
+        dt = np.append(t[lo:hi] - a_t, b_t - a_t)
+        active, off, back = [], [], []
         for k, r in enumerate(runs):
             if a_t < r.start[0]:
                 continue
             kind = r.kind[np.searchsorted(r.start, a_t, side="right") - 1]
             if kind == ON:
                 active.append(k)
+            elif kind == RELEASE and r.returns:
+                if state[k] > 0.0:       # into the bus until the diodes block at zero
+                    back.append(k)
+                else:
+                    cur[k, lo:hi], state[k], after[k] = 0.0, 0.0, 0.0
             else:
                 path = (r.r_off, r.v_off) if kind == HOLD_OFF else (r.r_rel, r.v_rel)
                 off.append((k, path))
+        if back:
+            # the first of the returning currents to reach zero ends the piece there
+            returning = [(runs[k].r_rel, runs[k].ind, runs[k].v_rel) for k in back]
+            x0 = np.concatenate([state[active], state[back], [v]])
+            args = (v_s, r_s, c, [runs[k].r_on for k in active], [runs[k].ind for k in active],
+                    x0, [runs[k].share for k in active], returning)
+            ends = _solve(*args[:5], x0, np.array([b_t - a_t]), args[6], returning)[len(active):-1, 0]
+            if np.any(ends <= 0.0):
+                when = min(_first_zero(args, len(active) + p, b_t - a_t) for p in np.flatnonzero(ends <= 0.0))
+                pieces.insert(0, (a_t + when, b_t))
+                b_t = a_t + when
+                hi = np.searchsorted(t, b_t, side="right")
+                dt = np.append(t[lo:hi] - a_t, b_t - a_t)
         for k, (r_p, v_p) in off:
-            x = np.maximum((state[k] + v_p / r_p) * np.exp(-dt * r_p / runs[k].ind) - v_p / r_p, 0.0)
-            cur[k, lo:hi], state[k] = x[:-1], x[-1]
-        if active:
-            xs = _solve(v_s, r_s, c, [runs[k].r_on for k in active], [runs[k].ind for k in active],
-                        np.append(state[active], v), dt)
+            x, terminal = runs[k].decay(state[k], r_p, v_p, dt)
+            cur[k, lo:hi], state[k], after[k] = terminal[:-1], x[-1], terminal[-1]
+        share = [runs[k].share for k in active]
+        r_on = [runs[k].r_on for k in active]
+        if active or back:
+            xs = _solve(v_s, r_s, c, r_on, [runs[k].ind for k in active],
+                        np.concatenate([state[active], state[back], [v]]), dt, share,
+                        [(runs[k].r_rel, runs[k].ind, runs[k].v_rel) for k in back])
         else:                       # the capacitor recharges through R_s alone
             xs = (v_s + (v - v_s) * np.exp(-dt / (r_s * c)))[None, :]
+        for p, k in enumerate(back):
+            x = np.maximum(xs[len(active) + p], 0.0)
+            x[-1] = x[-1] if x[-1] > 1e-9 * max(state[k], 1e-300) else 0.0    # stopped at the piece's end
+            cur[k, lo:hi], state[k], after[k] = x[:-1], x[-1], x[-1]
         for p, k in enumerate(active):
-            cur[k, lo:hi], state[k] = xs[p, :-1], xs[p, -1]
+            terminal = share[p] * xs[p] + (1.0 - share[p]) * xs[-1] / r_on[p]
+            cur[k, lo:hi], state[k], after[k] = terminal[:-1], xs[p, -1], terminal[-1]
+            if a_t == runs[k].start[0] and lo > 0 and t[lo - 1] == a_t:
+                # a run's own switch-on sample: the step there is its first value (a
+                # waveform's first row), from zero
+                cur[k, lo - 1] = (1.0 - share[p]) * v / r_on[p]
         bus[lo:hi], v = xs[-1, :-1], float(xs[-1, -1])
     last = t >= moments[-1]
     bus[last] = v
-    cur[:, last] = state[:, None]
+    cur[:, last] = after[:, None]
     return cur, bus
 
 
-def _solve(v_s, r_s, c, r, l, x0, dt) -> np.ndarray:
-    """The state ``(i..., v)`` of the coils ``r``, ``l`` on the bus from ``x0`` after each
-    of the times ``dt`` (s): rows per state, columns per time."""
-    piece = _piece(v_s, r_s, c, r, l)
+def _first_zero(args, row: int, span: float) -> float:
+    """When (s, within ``span``) the state's component ``row`` of :func:`_solve` with
+    ``args`` first reaches zero: a returning current, which only falls (``L di/dt = -(v +
+    v_rel) - r_rel i < 0``), so it is bracketed by the piece (scipy's brentq on the closed
+    form)."""
+    from scipy.optimize import brentq
+
+    def at(s):
+        return float(_solve(*args[:5], args[5], np.array([s]), args[6], args[7])[row, 0])
+    return brentq(at, 0.0, span, xtol=1e-15, rtol=1e-14)
+
+
+def _with_returns(a, b, r_s, c, back):
+    """``(A, b)`` with coils returning into the bus appended before it (``back``: ``(r_rel
+    ohm, L H, v_rel V)`` each; :class:`BusRun`'s ``returns``)."""
+    m = a.shape[0] - 1
+    n = m + len(back)
+    big = np.zeros((n + 1, n + 1))
+    big[:m, :m], big[:m, n], big[n, :m], big[n, n] = a[:m, :m], a[:m, m], a[m, :m], a[m, m]
+    bb = np.zeros(n + 1)
+    bb[:m], bb[n] = b[:m], b[m]
+    for j, (r_p, l_p, v_p) in enumerate(back):
+        big[m + j, m + j] = -r_p / l_p
+        big[m + j, n] = -1.0 / l_p
+        big[n, m + j] = 1.0 / c
+        bb[m + j] = -v_p / l_p
+    return big, bb
+
+
+def _solve(v_s, r_s, c, r, l, x0, dt, share=None, back=()) -> np.ndarray:
+    """The state ``(i..., returning i..., v)`` of the coils ``r``, ``l`` (``share``:
+    :func:`_on_matrix`'s) on the bus, and of the coils ``back`` returning into it
+    (:func:`_with_returns`), from ``x0`` after each of the times ``dt`` (s): rows per state,
+    columns per time."""
+    if back:
+        a = _on_matrix(r_s, c, r, l, share)
+        b = np.zeros(a.shape[0])
+        b[-1] = v_s / (r_s * c)
+        a, b = _with_returns(a, b, r_s, c, back)
+        lam, vec = np.linalg.eig(a)
+        piece = (lam, vec, np.linalg.inv(vec), np.linalg.solve(a, -b))
+    else:
+        piece = _piece(v_s, r_s, c, r, l, share)
     if np.linalg.cond(piece[1]) <= EIG_CONDITION:
         out = _evaluate(piece, x0, dt)
         out[:, dt == 0.0] = np.asarray(x0, float)[:, None]     # the start itself, not rounded
         return out
     from scipy.linalg import expm
 
-    a, b = _system(v_s, r_s, c, ["on"] * len(r), r, l, np.zeros(len(r)))
+    a = _on_matrix(r_s, c, r, l, share)
+    b = np.zeros(a.shape[0])
+    b[-1] = v_s / (r_s * c)
+    if back:
+        a, b = _with_returns(a, b, r_s, c, back)
     m = len(x0)
     aug = np.zeros((m + 1, m + 1))
     aug[:m, :m], aug[:m, m] = a, b

@@ -315,6 +315,21 @@ def _eddy_actuation(drive: Drive, lp, supply: float, peak_time: float, duty: flo
     return boost_columns(drive, w, supply, peak_time, float(np.ravel(lp.r_on)[0]), lp.inductance[...])
 
 
+def _in_order(time: np.ndarray) -> np.ndarray:
+    """The order that sorts ``time`` (s), rows the same instant to rounding (1e-15 s apart)
+    kept in the order given: a segment's last row before the next one's first, however the
+    two sums that make their times round (a stable sort alone would swap them, putting the
+    switch edge's row after the step before the row before it)."""
+    order = np.argsort(time, kind="stable")
+    for _ in range(len(order)):
+        t = time[order]
+        swap = np.flatnonzero((np.diff(t) <= 1e-15) & (order[1:] < order[:-1]))
+        if swap.size == 0:
+            break
+        order[swap], order[swap + 1] = order[swap + 1], order[swap].copy()
+    return order
+
+
 def eddy_waveform(drive: Drive, lp, supply: float, pieces, peak_time: float, label: str,
                   fast=None, lead: float = 0.0, last_on: float = 0.0) -> Waveform:
     """The :class:`Waveform` of an actuation with an eddy term from its sample pieces
@@ -324,7 +339,7 @@ def eddy_waveform(drive: Drive, lp, supply: float, pieces, peak_time: float, lab
     on-time."""
     bridged = full_bridge(drive)
     ts, cs, ms, ons, fasts, t_cut, t_zero = pieces
-    order = np.argsort(np.concatenate(ts), kind="stable")   # the bypass's sample, in place
+    order = _in_order(np.concatenate(ts))   # the bypass's sample, in place
     ts, cs, ms, ons, fasts = ([np.concatenate(x)[order]] for x in (ts, cs, ms, ons, fasts))
     time = np.concatenate(ts)
     # each switch edge has a row before and after the step: the one after sits EDGE s
