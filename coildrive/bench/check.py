@@ -9,9 +9,11 @@ to be at that temperature throughout (a bench actuation, not the design's settle
 coil). Closed-form figures come from :func:`coildrive.design.evaluate.evaluate`; with an
 ``[armature]`` the times to a current come from the model waveform
 (:func:`coildrive.model.waveform.actuation`) and the seat from the armature model. A PWM
-hold's mean is the model waveform's over the stretch the analysis measures (the last half
-of the hold, whole periods): the steady state where the hold has settled by then, and
-what the window really holds where it has not (a short hold after a high peak).
+hold at a fixed or supply-table duty has its mean from the model waveform over the stretch
+the analysis measures (the last half of the hold, whole periods): the steady state where
+the hold has settled by then, and what the window really holds where it has not (a short
+hold after a high peak); a closed loop's is its settled mean (the loop's own PI pulls the
+current onto the set-point).
 
 Each figure passes when every actuation's value lies inside ``predicted x (1 +/- tol)``
 widened to at least two resolution steps of the measurement (two sample periods, or
@@ -366,9 +368,11 @@ def predict(design, point: OperatingPoint, hold_time: float) -> tuple[dict, obje
         pred["release_time_s"] = _waveform_crossing(w, drive.release.current, w.events["off"], False)
     if drive.coil.eddy_resistance:
         pred["hold_ripple_a"] = _waveform_spread_ripple(w, freq)
-    if design.hold.current_mode is None:
+    if design.hold.current_mode is None and drive.hold.regulation != "closed_loop":
         # the capture's mean is over the hold's last half: where the current has not
-        # settled there yet, the model's mean over that stretch, not its steady state
+        # settled there yet, the model's mean over that stretch, not its steady state (a
+        # fixed duty's; a closed loop regulates to its set-point faster than the model's
+        # waveform at the settled duty would decay there, so it keeps the settled mean)
         window = _waveform_hold_mean(w, freq)
         if window is not None:
             pred["hold_mean_a"] = window
