@@ -1783,8 +1783,8 @@ def _read_latch(source: str, data: dict, s: "_Section", pull_in: PullIn) -> tupl
 def _latch_drive(source, path, data, brd, coil, sheet, supply, ambient, thermal, pull_in, hold,
                  release, armature, duty, latch) -> Drive:
     """A latching coil's :class:`Drive`: what it is not designed with is refused in one line.
-    A moving armature takes a linear coil or its open and seated flux-linkage curves
-    (:func:`coildrive.design.latch.seat_run`), not an eddy-current term."""
+    A moving armature takes a linear coil or its open and seated flux-linkage curves, either
+    with an eddy-current term (:func:`coildrive.design.latch.seat_run`)."""
     why = None
     if coil.drop_out_voltage:
         key, why = "coil.drop_out_voltage", ("a drop-out voltage: it stays where its last pulse put it "
@@ -1793,10 +1793,6 @@ def _latch_drive(source, path, data, brd, coil, sheet, supply, ambient, thermal,
         key = "coil.operate_time" if coil.operate_time else "coil.release_time"
         why = ("the datasheet's operate or release time: they time a monostable coil's peak and "
                "release, which it does not have")
-    elif coil.eddy_resistance and armature is not None:
-        key, why = "coil.eddy_resistance", ("an eddy-current term and a moving [armature] together (the set "
-                                            "pulse's seat run takes no eddy term, and the energy balance "
-                                            "cannot tell the eddy resistance's share from the armature's)")
     elif thermal.resistance > 0 and not thermal.capacity > 0:
         key, why = "thermal.capacity", ("no heat capacity (the pulses' heat and the interval between "
                                         "them need it: give thermal.capacity or time_constant)")

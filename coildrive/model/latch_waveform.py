@@ -150,19 +150,22 @@ def _seating(drive: Drive, lp, l_factor: float, t_pulse: float, points: int, sup
     """The set pulse with a moving armature (:func:`coildrive.model.armature_sim.simulate`
     from rest at the open stop; on a drooping bus from a full capacitor, a state of the
     run): ``(t, i, gap, bus)``. The armature must rest on the seat when the pulse ends (the
-    catch then holds it, and the decay is the seated coil's); :class:`NotSeated` otherwise."""
+    catch then holds it, and the decay is the seated coil's); :class:`NotSeated` otherwise.
+    With an eddy term ``i`` is the magnetising current (the branch behind the loop's
+    Thevenin pair)."""
     from .armature import params_from_loop
     from .armature_sim import simulate
 
     s = drive.supply
     bus = (s.source_resistance, s.capacitance) if s.droops else (0.0, 0.0)
-    tr = simulate(params_from_loop(drive.armature, lp, l_factor, bus=bus), [(t_pulse, True, points)],
-                  points=points)
+    tr = simulate(params_from_loop(drive.armature, lp, l_factor, drive.coil.eddy_resistance, bus=bus),
+                  [(t_pulse, True, points)], points=points)
     if tr.state != "seated":
         raise NotSeated(f"the armature is not on the seat when the set pulse ends at {supply:g} V, coil "
                          f"{coil_temp:g} degC, so the catch would not hold it")
-    return tr.time, tr.current, tr.position, (np.full(tr.time.shape, float(lp.v_on)) if tr.bus is None
-                                              else tr.bus)
+    # (with an eddy term the magnetising current: pulse() turns it into the terminal current)
+    i = tr.current if tr.magnetising_current is None else tr.magnetising_current
+    return tr.time, i, tr.position, (np.full(tr.time.shape, float(lp.v_on)) if tr.bus is None else tr.bus)
 
 
 def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float,
