@@ -1428,9 +1428,10 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     sinks with a plain linear coil and no armature, the bus's rise bounded by
     :func:`coildrive.model.bus_decay.mixed_hold_rise`). A latching coil
     on one switch, with a moving armature too (the set pulse's seat run carries the
-    capacitor, linear or on its two curves: :func:`coildrive.design.latch.seat_run`), or
-    on a full bridge with a linear coil (each pulse's fast decay into the bus:
-    :func:`coildrive.design.latch.bus_decays`). Any hold
+    capacitor, linear or on its two curves, an eddy term too:
+    :func:`coildrive.design.latch.seat_run`), or on a full bridge with a linear coil, or on
+    a supply that sinks a flux-linkage curve or an eddy term, either way (each pulse's fast
+    decay into the bus: :func:`coildrive.design.latch.bus_decays`). Any hold
     (the droop is the peak's; a regulated hold takes it out of the hold) and any freewheel
     path (a clamp's release, which draws from the bus, is computed on the undrooped bus:
     the safe side). A moving armature: a linear coil or its open and seated curves (an
@@ -1452,14 +1453,17 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
                                           "(each off-time's fast part returns current the bus keeps: it "
                                           "pumps up period after period) or with a flux-linkage curve, an "
                                           "eddy-current term or an [armature]")
-    elif switch.topology == "full_bridge" and hold.mode == "latch" and (coil.flux_current or coil.eddy_resistance):
-        key, why = "hold.mode", ("a latching coil on a full bridge with a flux-linkage curve or an eddy-current "
-                                 "term (the fast decay into the bus: a linear coil only)")
+    elif (switch.topology == "full_bridge" and hold.mode == "latch" and not supply.sink
+          and (coil.flux_current or coil.eddy_resistance)):
+        key, why = "supply.sink", ("a latching coil on a full bridge with a flux-linkage curve or an "
+                                   "eddy-current term on a supply that cannot sink (the fast decay's trace "
+                                   "for simulate and the bench: a linear coil only; give sink = true)")
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
                          f"{why}: expected source_resistance left out, or one switch (a full bridge: "
                          "a slow-decay peak-and-hold or, on a supply that sinks, a linear coil's mixed decay "
-                         "without an [armature]; a latching coil: a linear coil on a full bridge)")
+                         "without an [armature]; a latching coil on a full bridge: a linear coil, or on a "
+                         "supply that sinks a curve or an eddy term too)")
 
 
 def _read_boost(s: "_Section") -> tuple:

@@ -53,8 +53,10 @@ from ..model import bus_decay
 from ..model.bridge import fast_switch_voltage, pump_up
 from ..model.circuit import freewheel_element_energy, full_bridge, loop, open_inductance
 from ..model.eddy import EddyCoil, release_eddy_energy, stored_energy
+from ..model.eddy import terminal as eddy_terminal
 from ..model.flux import FluxCoil
 from ..model.flux import rise_integrals as flux_rise_integrals
+from ..model.flux_bus_decay import fast_decays
 from ..model.rl import decay_integrals, decay_time, rise_current, rise_integrals
 from ..model.topology import topology_of
 from .checks import SAFETY_CAUTION
@@ -446,12 +448,15 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
 def bus_decays(drive: Drive, lp, rel, i0) -> list | None:
     """A full bridge's fast decay of ``i0`` A after a pulse on the drooping bus (else
     ``None``): the current returns through two body diodes into the bus behind ``R_s`` and
-    ``C`` (:mod:`coildrive.model.bus_decay`, closed form; a supply that cannot sink:
-    ``decay_no_sink``), from each of :data:`~coildrive.model.bus_decay.STARTS` starting buses
+    ``C`` (:func:`coildrive.model.flux_bus_decay.fast_decays`: a linear coil's closed form
+    of :mod:`coildrive.model.bus_decay`, with an eddy term ``eddy_decay``, a flux-linkage
+    curve's stepped run, either way; a supply that cannot sink: the ``*_no_sink`` forms;
+    with an eddy term ``i0`` is the magnetising current), from each of :data:`~coildrive.model.bus_decay.STARTS` starting buses
     evenly between the source ``V_s`` (``lp.v_on``) and the lowest the bus can be at the
     pulse's end: a pulse starts from at least ``(1 - recharge_tolerance) V_s`` (the interval
     waits for that) and, its current rising to ``i0``, cannot pull the bus below the floor
-    ``V_s - R_s i0`` under it (:func:`~coildrive.model.supply.bus_floor`), nor below ``-2
+    ``V_s - R_s i0`` under it (:func:`~coildrive.model.supply.bus_floor`; with an eddy term
+    the terminal current ``(V_s + R_e i0)/(R + R_e)`` in place of ``i0``), nor below ``-2
     V_d`` (the body diodes). :class:`~coildrive.model.bus_decay.FastDecay` per start."""
     from ..model.supply import bus_floor
 
@@ -460,11 +465,14 @@ def bus_decays(drive: Drive, lp, rel, i0) -> list | None:
         return None
     v_s = np.asarray(lp.v_on, float)
     v_d = np.asarray(rel.diode(drive), float)
-    lo = np.maximum(np.minimum((1.0 - drive.latch.recharge_tolerance) * v_s, bus_floor(v_s, s.source_resistance, i0)),
+    ind = rel.inductance
+    # the bus under the pulse's end: the terminal current draws it (with an eddy term above
+    # the magnetising i0 while the flux still rises: its value at the source, the most)
+    draw = eddy_terminal(i0, v_s, lp.r_on, ind.resistance) if isinstance(ind, EddyCoil) else i0
+    lo = np.maximum(np.minimum((1.0 - drive.latch.recharge_tolerance) * v_s, bus_floor(v_s, s.source_resistance, draw)),
                     -2.0 * v_d)
-    fast = bus_decay.decay if s.sink else bus_decay.decay_no_sink
-    return [fast(i0, lo + (v_s - lo) * k / (bus_decay.STARTS - 1), 0.0, v_s, s.source_resistance, s.capacitance,
-                 rel.r_off, rel.inductance, v_d) for k in range(bus_decay.STARTS)]
+    starts = [lo + (v_s - lo) * k / (bus_decay.STARTS - 1) for k in range(bus_decay.STARTS)]
+    return fast_decays(ind, i0, starts, 0.0, v_s, s.source_resistance, s.capacitance, rel.r_off, v_d, s.sink)
 
 
 def time_to_zero(drive: Drive, lp, rel, i0, fast=None):

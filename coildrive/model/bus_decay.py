@@ -230,6 +230,16 @@ def _eddy_run(b, i0, v0, i_drop, v_s, v_d, r_e):
                      -u_z - 2.0 * v_d, charge), at
 
 
+def eddy_trace(t, i0, v0, v_s, r_s, c, r, l, v_d, r_e):
+    """The terminal current (A, at least 0) and the bus (V) ``t`` s (an array) into
+    :func:`eddy_decay` of one point from a magnetising current ``i0`` A and the bus at
+    ``v0`` V, up to the terminal current's zero: the same closed form
+    (:func:`coildrive.model.supply.state_from` in ``u = -(v + 2 V_d)``)."""
+    b = supply.bus(-(v_s + 2.0 * v_d), r_s, c, r, l, r_e)
+    i_m, u = supply.state_from(np.asarray(t, float), b, i0, -(v0 + 2.0 * v_d))
+    return np.maximum(supply.terminal(i_m, u, b), 0.0), -u - 2.0 * v_d
+
+
 def eddy_decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e) -> FastDecay:
     """:func:`eddy_decay` on a supply that cannot sink (as :func:`decay_no_sink`): with the
     source until the bus reaches ``v_s`` V (it rises monotonically to its first maximum: a
