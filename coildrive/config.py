@@ -1807,12 +1807,14 @@ def _latch_drive(source, path, data, brd, coil, sheet, supply, ambient, thermal,
 
 
 def _check_latch(source: str, switch: Switch, freewheel: Freewheel, latch: Latch,
-                 armature: Armature | None = None) -> None:
+                 armature: Armature | None = None, supply: Supply | None = None) -> None:
     """A latching coil's circuit: a full bridge reverses one coil (no [reset_coil]); one
     switch per winding (low or high side) needs the reset winding. A moving armature is
     the mechanically latched one (a catch holds it seated, the reset winding trips the
     catch): with a reset winding only, since reversing one coil unlatches only a
-    permanent-magnet armature, which the armature model does not have."""
+    permanent-magnet armature, which the armature model does not have. A clamp across the
+    switch on a stiff bus (each decay draws from the bus: the pulse energies take it), not
+    on the drooping one."""
     if switch.topology == "full_bridge" and latch.reset_coil is not None:
         raise InputError(source, "reset_coil", "a full bridge resets the one coil with the other "
                          "polarity: expected [reset_coil] left out (or a low- or high-side board)")
@@ -1821,10 +1823,11 @@ def _check_latch(source: str, switch: Switch, freewheel: Freewheel, latch: Latch
                          "by a permanent magnet, which the armature model does not have: expected "
                          "[armature] left out, or a reset winding ([reset_coil]) on a low- or "
                          "high-side board (a catch that the reset winding trips)")
-    if freewheel.type == "clamp":
-        raise InputError(source, "freewheel.type", "\"clamp\" with a latching coil: a clamp across the "
-                         "switch draws from the bus after each pulse, which the pulse energies do not "
-                         "model yet; expected \"diode\", \"zener\" or \"resistor\"")
+    if freewheel.type == "clamp" and supply is not None and supply.droops:
+        raise InputError(source, "freewheel.type", "\"clamp\" with a latching coil on the drooping bus "
+                         "(supply.source_resistance): the clamp keeps drawing from the capacitor through "
+                         "each pulse's decay, which its droop and recharge do not model yet; expected "
+                         "\"diode\", \"zener\" or \"resistor\", or a stiff bus")
     if freewheel.split_decay:
         raise InputError(source, "freewheel.split_decay", "a latching coil has no hold to decay slowly "
                          "in: expected split_decay left out")
@@ -1857,6 +1860,6 @@ def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_
                          f"{freewheel.clamp_voltage:g} V is not above supply.max ({supply.max:g} V): "
                          "the clamp would conduct with the switch off")
     if latch is not None:
-        _check_latch(source, switch, freewheel, latch, armature)
+        _check_latch(source, switch, freewheel, latch, armature, supply)
     return Drive(path.stem, coil, supply, ambient, thermal, pull_in, hold, release, brd, switch,
                  freewheel, armature, source, duty, latch=latch)

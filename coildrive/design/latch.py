@@ -96,7 +96,9 @@ class PulseResult:
     ``current_a``; ``force_time_s`` to ``force_current_a`` (``current_margin`` x it);
     ``governed_by`` which of the two set the length. ``end_current_a``: the current at
     the end of the shortest pulse at the worst corner. Energies of one pulse at
-    ``energy_corner``: ``supply_j`` (from the supply while on), ``copper_j`` (the coil's
+    ``energy_corner``: ``supply_j`` (from the supply while on; with a clamp across the
+    switch during the decay too, whose current the bus drives through the coil and the
+    clamp), ``copper_j`` (the coil's
     copper, pulse and decay), ``switch_sense_j`` (the switches and the sense resistor),
     ``freewheel_j`` (the freewheel path: a bridge's two body diodes), ``returned_j`` (back
     to the bus: a bridge's fast decay; 0 otherwise), ``eddy_j`` (an eddy-current term's
@@ -341,7 +343,9 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     sense = drive.board.sense
     n_sw = 2.0 if bridge else 1.0
     sense_decay = bridge or sense.position == "coil"
-    supply_e = v * q_on
+    # a clamp across the switch: the decay's current flows from the bus through the coil and
+    # the clamp (L di/dt = -(R_off i + V_clamp - V)), so the bus gives V int i dt then too
+    supply_e = v * q_on + (v * q_d if drive.freewheel.type == "clamp" else 0.0 * q_d)
     copper = lp.r_coil * (s_on + s_d)
     r_sense = sense.resistance * pts.sense_factor
     sw_sense = n_sw * drive.switch.on_resistance * s_on + r_sense * (s_on + (s_d if sense_decay else 0.0))
