@@ -1429,9 +1429,9 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     :func:`coildrive.model.bus_decay.mixed_hold_rise`). A latching coil
     on one switch, with a moving armature too (the set pulse's seat run carries the
     capacitor, linear or on its two curves, an eddy term too:
-    :func:`coildrive.design.latch.seat_run`), or on a full bridge with a linear coil, or on
-    a supply that sinks a flux-linkage curve or an eddy term, either way (each pulse's fast
-    decay into the bus: :func:`coildrive.design.latch.bus_decays`). Any hold
+    :func:`coildrive.design.latch.seat_run`), or on a full bridge with a linear coil or an
+    eddy term (linear or on a curve), a curve without one on a supply that sinks (each
+    pulse's fast decay into the bus: :func:`coildrive.design.latch.bus_decays`). Any hold
     (the droop is the peak's; a regulated hold takes it out of the hold) and any freewheel
     path (a clamp's release, which draws from the bus, is computed on the undrooped bus:
     the safe side). A moving armature: a linear coil or its open and seated curves (an
@@ -1454,16 +1454,16 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
                                           "pumps up period after period) or with a flux-linkage curve, an "
                                           "eddy-current term or an [armature]")
     elif (switch.topology == "full_bridge" and hold.mode == "latch" and not supply.sink
-          and (coil.flux_current or coil.eddy_resistance)):
-        key, why = "supply.sink", ("a latching coil on a full bridge with a flux-linkage curve or an "
-                                   "eddy-current term on a supply that cannot sink (the fast decay's trace "
-                                   "for simulate and the bench: a linear coil only; give sink = true)")
+          and coil.flux_current and not coil.eddy_resistance):
+        key, why = "supply.sink", ("a latching coil on a full bridge with a flux-linkage curve (no eddy-current "
+                                   "term) on a supply that cannot sink (the fast decay's trace into the "
+                                   "capacitor alone for simulate and the bench is not built; give sink = true)")
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
                          f"{why}: expected source_resistance left out, or one switch (a full bridge: "
                          "a slow-decay peak-and-hold or, on a supply that sinks, a linear coil's mixed decay "
-                         "without an [armature]; a latching coil on a full bridge: a linear coil, or on a "
-                         "supply that sinks a curve or an eddy term too)")
+                         "without an [armature]; a latching coil on a full bridge: a linear coil or an eddy "
+                         "term, or on a supply that sinks a curve too)")
 
 
 def _read_boost(s: "_Section") -> tuple:

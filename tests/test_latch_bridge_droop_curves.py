@@ -1,8 +1,9 @@
 """A latching coil on a full bridge on the drooping bus with a flux-linkage curve or an
 eddy-current term: the irrigation valve of tests/test_latch_bridge_droop.py (0.8 ohm onto
-1000 uF, a supply that takes current back) with its 15 mH replaced by the invented
+1000 uF) with its 15 mH replaced by the invented
 saturating curve of tests/test_latch_flux.py, with an invented 50 ohm eddy resistance
-across its 15 mH, or both.
+across its 15 mH, or both, on a supply that takes current back; the eddy term (linear or on
+the curve) also on one that cannot (a diode in its feed).
 
 References, written afresh here with scipy's ``solve_ivp`` (DOP853, rtol 1e-11), each
 curve scipy's own ``PchipInterpolator`` through the file's table (Fritsch & Carlson 1980)
@@ -14,7 +15,8 @@ terminal current ``i`` through the loop, ``L di_m/dt = R_e (i - i_m)``):
   from a full capacitor (``C du/dt = (V_s - u)/R_s - i``);
 * after it the fast decay through two body diodes back into the bus, the coil seeing
   ``-(u + 2 V_d) = R i + L_d di_m/dt``, ``C du/dt = i + (V_s - u)/R_s``, to the terminal
-  current's zero, from the lowest and the highest starting bus of docs/design-method.md;
+  current's zero (without a sink the feed term only while ``u < V_s``, an event where the
+  bus reaches it), from the lowest and the highest starting bus of docs/design-method.md;
   the highest bus + ``V_d`` is the switches' voltage (the sense resistor inline).
 
 Tolerances: 1e-6 for the eddy term's closed forms, 1e-5 for the curve's stepped run.
@@ -28,6 +30,8 @@ from scipy.integrate import solve_ivp
 from scipy.interpolate import PchipInterpolator
 
 from coildrive.bench.latch_check import predict_pulse
+from coildrive.model import flux_bus_decay
+from coildrive.model.circuit import loop
 from test_latch_armature_curves import designed
 from test_latch_bridge_droop import C, R_S, _loop, droop_bridge, simulated
 from test_latch_flux import CURVE_I, _psi, _table, device_reports
@@ -35,15 +39,18 @@ from test_latch_flux import CURVE_I, _psi, _table, device_reports
 OPTS = dict(method="DOP853", rtol=1e-11, atol=1e-13)
 R_E = 50.0   # ohm, invented
 #: the coil's lines, its eddy resistance, the tolerance, the branch ("curve" or linear)
-VARIANTS = {"curve": (_table(), None, 1e-5, "curve"),
-            "eddy": (f'inductance = "15 mH"\neddy_resistance = "{R_E:g} ohm"\n', R_E, 1e-6, "linear"),
-            "curve-eddy": (_table() + f'eddy_resistance = "{R_E:g} ohm"\n', R_E, 1e-5, "curve")}
+VARIANTS = {"curve": (_table(), None, 1e-5, "curve", True),
+            "eddy": (f'inductance = "15 mH"\neddy_resistance = "{R_E:g} ohm"\n', R_E, 1e-6, "linear", True),
+            "curve-eddy": (_table() + f'eddy_resistance = "{R_E:g} ohm"\n', R_E, 1e-5, "curve", True),
+            "eddy-no-sink": (f'inductance = "15 mH"\neddy_resistance = "{R_E:g} ohm"\n', R_E, 1e-6, "linear",
+                             False),
+            "curve-eddy-no-sink": (_table() + f'eddy_resistance = "{R_E:g} ohm"\n', R_E, 1e-5, "curve", False)}
 
 
 @pytest.fixture(scope="module", params=list(VARIANTS))
 def bridge(request, tmp_path_factory):
-    coil, r_e, tol, kind = VARIANTS[request.param]
-    path = droop_bridge(tmp_path_factory.mktemp(f"latch-bridge-{request.param}"), True)
+    coil, r_e, tol, kind, sink = VARIANTS[request.param]
+    path = droop_bridge(tmp_path_factory.mktemp(f"latch-bridge-{request.param}"), sink)
     path.write_text(path.read_text().replace('inductance = "15 mH"\n', coil))
     return (*designed(path), kind, r_e, tol)
 
@@ -72,26 +79,38 @@ def _pulse(coil: Coil, r_e, v_s, r, t, bus: bool):
     return float(sol.y[1, -1]), float(sol.y[0, -1])
 
 
-def _decay(coil: Coil, r_e, v_s, r, v_d, i0, u0, t_eval=None):
+def _decay(coil: Coil, r_e, v_s, r, v_d, i0, u0, sink: bool, t_eval=None):
     """The fast decay into the bus to the terminal current's zero: ``(zero time s, highest
     bus over it V)``; the bus at the zero as ``_decay.bus_zero``, the terminal current at
-    ``t_eval`` as ``_decay.at``."""
+    ``t_eval`` as ``_decay.at``. Without a ``sink`` the feed is an ideal one-way diode: its
+    term only while ``u < V_s`` (an event where the bus reaches ``V_s``)."""
     def flow(y):
         i_m, u = y
         return i_m if r_e is None else (r_e * i_m - u - 2 * v_d) / (r + r_e)
 
+    def feed(u):
+        return (v_s - u) / R_S if sink or u < v_s else 0.0
+
     def rhs(_t, y):
         i_m, u = y
         i = flow(y)
-        return [(-(u + 2 * v_d) - r * i) / coil.ld(i_m), (i + (v_s - u) / R_S) / C]
+        return [(-(u + 2 * v_d) - r * i) / coil.ld(i_m), (i + feed(u)) / C]
 
     zero = lambda t, y: flow(y)   # noqa: E731
     zero.terminal, zero.direction = True, -1
-    sol = solve_ivp(rhs, (0.0, 1.0), [i0, u0], events=zero, dense_output=True, **OPTS)
-    top = max(u0, float(np.max(sol.sol(np.linspace(0.0, sol.t[-1], 4001))[1])))
+    reach = lambda t, y: y[1] - v_s   # noqa: E731  (the one-way feed blocks here)
+    reach.terminal, reach.direction = (not sink), 1
+    t0, y0, top, pieces = 0.0, [i0, u0], u0, []
+    while True:
+        sol = solve_ivp(rhs, (t0, 1.0), y0, events=[zero, reach], dense_output=True, **OPTS)
+        pieces.append(sol)
+        top = max(top, float(np.max(sol.sol(np.linspace(t0, sol.t[-1], 4001))[1])))
+        if sol.t_events[0].size:
+            break
+        t0, y0 = float(sol.t[-1]), [float(sol.y[0, -1]), v_s * (1 + 1e-15)]
     _decay.bus_zero = float(sol.y_events[0][0][1])
     if t_eval is not None:
-        _decay.at = np.array([flow(sol.sol(t)) for t in t_eval])
+        _decay.at = np.array([flow(next(p for p in pieces if p.t[0] <= t <= p.t[-1]).sol(t)) for t in t_eval])
     return float(sol.t_events[0][0]), top
 
 
@@ -111,7 +130,7 @@ def test_fast_decays_into_the_bus_against_solve_ivp(bridge):
                         draw = i0 if r_e is None else (v_s + r_e * i0) / (r_on + r_e)
                         low = max(min((1 - tol_v) * v_s, v_s - R_S * draw), -2 * v_d)
                         for u0 in (low, v_s):
-                            t_zero, top = _decay(coil, r_e, v_s, r_off, v_d, i0, u0)
+                            t_zero, top = _decay(coil, r_e, v_s, r_off, v_d, i0, u0, drive.supply.sink)
                             zeros.append(t_zero)
                             v_sw.append(max(top, v_s) + v_d)   # (a bus below v_s recovers to it)
         assert p.decay_time_s == pytest.approx(max(zeros), rel=tol), "time to zero vs solve_ivp"
@@ -127,9 +146,9 @@ def test_simulate_check_and_the_device(bridge, tmp_path):
     r_on, r_off, _, v_d = _loop(drive, 20.0, 1.0, 1.0)
     coil = Coil(kind, 0.015, 1.0)
     i0, u0 = _pulse(coil, r_e, 12.0, r_on, p.time_s, bus=True)
-    t_zero, top = _decay(coil, r_e, 12.0, r_off, v_d, i0, u0)
+    t_zero, top = _decay(coil, r_e, 12.0, r_off, v_d, i0, u0, drive.supply.sink)
     k = (data["time_s"] > p.time_s) & (data["time_s"] < p.time_s + 0.9 * t_zero)
-    _decay(coil, r_e, 12.0, r_off, v_d, i0, u0, t_eval=data["time_s"][k] - p.time_s)
+    _decay(coil, r_e, 12.0, r_off, v_d, i0, u0, drive.supply.sink, t_eval=data["time_s"][k] - p.time_s)
     assert np.allclose(data["current_a"][k], _decay.at, rtol=10 * tol, atol=1e-7), "the decay vs solve_ivp"
     # Q1 sees the bus + V_d while the diodes conduct (at most the highest), the bus once they block
     w = (data["time_s"] > p.time_s) & (data["time_s"] <= p.time_s + t_zero * (1 + 1e-6))
@@ -142,3 +161,11 @@ def test_simulate_check_and_the_device(bridge, tmp_path):
     assert got == pytest.approx(t_zero, rel=tol), "the check's time to zero vs solve_ivp"
     for ok, rep in device_reports(d, tmp_path, 12.0, 20.0):
         assert rep.ok == ok, [(i.name, i.detail) for i in rep.items]
+    if not drive.supply.sink:   # the trace from a full bus: the feed blocks at once, the capacitor alone
+        rel = loop(drive, 12.0, 20.0, 1.0, 1.0, path="release")
+        t_zero, top = _decay(coil, r_e, 12.0, r_off, v_d, i0, 12.0, False)
+        t = np.linspace(0.0, 0.9 * t_zero, 50)
+        _decay(coil, r_e, 12.0, r_off, v_d, i0, 12.0, False, t_eval=t)
+        i, bus = flux_bus_decay.trace(t, rel.inductance, i0, 12.0, 12.0, R_S, C, r_off, v_d, sink=False)
+        assert np.allclose(i, _decay.at, rtol=10 * tol, atol=1e-7), "the capacitor alone vs solve_ivp"
+        assert float(np.max(bus)) <= top * (1 + 1e-9) and float(bus[-1]) > 12.0 + 0.1

@@ -264,22 +264,40 @@ def trace(t, coil, i0, v0, v_s, r_s, c, r, v_d, sink: bool = True):
     """The terminal current (A) and the bus (V) ``t`` s (an array) into the fast decay of one
     point (scalars) from ``i0`` A (with an eddy term the magnetising current) and the bus at
     ``v0`` V, up to the terminal current's zero, on the circuits of :func:`fast_decays`: a
-    linear coil's closed form (:func:`coildrive.model.bus_decay.trace`, a supply that cannot
-    sink too); with an eddy term the closed form of ``eddy_decay`` (the terminal current
-    ``k (i_m + u/R_e)``); a curve's stepped run read by its Hermite cubics. Past the zero
-    the current is 0 and the bus is left where it was (the caller ends there). A curve or an
-    eddy term on a supply that cannot sink has no trace here (``ValueError``)."""
+    linear coil's closed form (:func:`coildrive.model.bus_decay.trace`), with an eddy term
+    ``eddy_decay``'s (:func:`coildrive.model.bus_decay.eddy_trace`), a curve's stepped run
+    read by its Hermite cubics; a supply that cannot sink too (the source's circuit until
+    the feed blocks, then the capacitor alone's), except a curve without an eddy term, whose
+    run into the capacitor alone is stepped in the falling current
+    (:func:`coildrive.model.bridge.flux_pump_up`) with no time record (``ValueError``).
+    Past the zero the current is 0 and the bus is left where it was (the caller ends there)."""
     branch, r_e = _split(coil)
     if not isinstance(branch, FluxCoil) and r_e is None:
         return bus_decay.trace(t, i0, v0, v_s, r_s, c, r, branch, v_d, sink=sink)
-    if not sink:
-        raise ValueError("no trace of a curve's or an eddy term's fast decay on a supply that cannot sink")
-    t = np.asarray(t, float)
     i0, v0, v_s, r_s, c, r, v_d = (np.asarray(float(np.ravel(x)[0])) for x in (i0, v0, v_s, r_s, c, r, v_d))
-    if isinstance(branch, FluxCoil):
-        one = branch.with_scale(np.asarray(float(np.ravel(branch.scale)[0])))
-        fb, _ = _record(i0, v0, v_s, r_s, c, r, one, v_d, None if r_e is None else float(np.ravel(r_e)[0]))
-        i_m, u = flux_bus.state(t, fb)
-        i = terminal(i_m, u, fb)
-        return np.maximum(i, 0.0), -u - 2.0 * v_d
-    return bus_decay.eddy_trace(t, i0, v0, v_s, r_s, c, r, float(np.ravel(branch)[0]), v_d, float(np.ravel(r_e)[0]))
+    r_e = None if r_e is None else float(np.ravel(r_e)[0])
+    if not isinstance(branch, FluxCoil):
+        return bus_decay.eddy_trace(t, i0, v0, v_s, r_s, c, r, float(np.ravel(branch)[0]), v_d, r_e, sink=sink)
+    if not sink and r_e is None:
+        raise ValueError("no trace of a curve's fast decay into the capacitor alone (a supply that cannot sink)")
+    t = np.asarray(t, float)
+    one = branch.with_scale(np.asarray(float(np.ravel(branch.scale)[0])))
+    fed, rec, fb = _decay(i0, np.minimum(v0, v_s), np.asarray(0.0), v_s, r_s, c, r, one, v_d, r_e)
+    t_a, blocked = np.inf, False
+    if not sink:   # where the bus reaches v_s the feed blocks: the capacitor alone from there
+        t0, h, _, _, _, _, u0, u1, du0, du1 = flux_bus.segments(rec)
+        t_u, found = flux_bus.first_crossing(t0, h, u0, u1, du0, du1, -(v_s + 2.0 * v_d), rising=False,
+                                             before=fed.zero_time)
+        blocked = bool(v0 >= v_s) or bool(found and v0 < v_s)
+        t_a = 0.0 if v0 >= v_s else (float(t_u) if blocked else np.inf)
+    i_m, u = flux_bus.state(np.minimum(t, t_a), fb)
+    i = terminal(i_m, u, fb)
+    if blocked:
+        i_a = i0 if v0 >= v_s else flux_bus.state(np.asarray(t_a), fb)[0]
+        v_a = np.maximum(v0, v_s)
+        _, _, alone = _decay(np.asarray(i_a, float), v_a, np.asarray(0.0), v_s, np.asarray(np.inf), c, r, one, v_d,
+                             r_e)
+        late = t > t_a
+        i_n, u_n = flux_bus.state(np.maximum(t - t_a, 0.0), alone)
+        i, u = np.where(late, terminal(i_n, u_n, alone), i), np.where(late, u_n, u)
+    return np.maximum(i, 0.0), -u - 2.0 * v_d
