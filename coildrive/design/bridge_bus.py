@@ -20,7 +20,6 @@ from ..model import bus_decay, flux_bus_decay
 from ..model.circuit import full_bridge
 from ..model.eddy import EddyCoil
 from ..model.eddy import terminal as eddy_terminal
-from ..model.flux import FluxCoil
 from ..model.supply import bus_floor
 from .figures import worst
 from .result import Check, ReleaseResult, SupplyResult

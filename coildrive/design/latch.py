@@ -455,7 +455,8 @@ def bus_decays(drive: Drive, lp, rel, i0) -> list | None:
     ``C`` (:func:`coildrive.model.flux_bus_decay.fast_decays`: a linear coil's closed form
     of :mod:`coildrive.model.bus_decay`, with an eddy term ``eddy_decay``, a flux-linkage
     curve's stepped run, either way; a supply that cannot sink: the ``*_no_sink`` forms;
-    with an eddy term ``i0`` is the magnetising current), from each of :data:`~coildrive.model.bus_decay.STARTS` starting buses
+    with an eddy term ``i0`` is the magnetising current), from each of
+    :data:`~coildrive.model.bus_decay.STARTS` starting buses
     evenly between the source ``V_s`` (``lp.v_on``) and the lowest the bus can be at the
     pulse's end: a pulse starts from at least ``(1 - recharge_tolerance) V_s`` (the interval
     waits for that) and, its current rising to ``i0``, cannot pull the bus below the floor
