@@ -1428,9 +1428,10 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     sinks with a plain linear coil and no armature, the bus's rise bounded by
     :func:`coildrive.model.bus_decay.mixed_hold_rise`). A latching coil
     on one switch, with a moving armature too (the set pulse's seat run carries the
-    capacitor, linear or on its two curves: :func:`coildrive.design.latch.seat_run`), or
-    on a full bridge with a linear coil (each pulse's fast decay into the bus:
-    :func:`coildrive.design.latch.bus_decays`). Any hold
+    capacitor, linear or on its two curves, an eddy term too:
+    :func:`coildrive.design.latch.seat_run`), or on a full bridge with a linear coil or an
+    eddy term (linear or on a curve), a curve without one on a supply that sinks (each
+    pulse's fast decay into the bus: :func:`coildrive.design.latch.bus_decays`). Any hold
     (the droop is the peak's; a regulated hold takes it out of the hold) and any freewheel
     path (a clamp's release, which draws from the bus, is computed on the undrooped bus:
     the safe side). A moving armature: a linear coil or its open and seated curves (an
@@ -1452,14 +1453,17 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
                                           "(each off-time's fast part returns current the bus keeps: it "
                                           "pumps up period after period) or with a flux-linkage curve, an "
                                           "eddy-current term or an [armature]")
-    elif switch.topology == "full_bridge" and hold.mode == "latch" and (coil.flux_current or coil.eddy_resistance):
-        key, why = "hold.mode", ("a latching coil on a full bridge with a flux-linkage curve or an eddy-current "
-                                 "term (the fast decay into the bus: a linear coil only)")
+    elif (switch.topology == "full_bridge" and hold.mode == "latch" and not supply.sink
+          and coil.flux_current and not coil.eddy_resistance):
+        key, why = "supply.sink", ("a latching coil on a full bridge with a flux-linkage curve (no eddy-current "
+                                   "term) on a supply that cannot sink (the fast decay's trace into the "
+                                   "capacitor alone for simulate and the bench is not built; give sink = true)")
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
                          f"{why}: expected source_resistance left out, or one switch (a full bridge: "
                          "a slow-decay peak-and-hold or, on a supply that sinks, a linear coil's mixed decay "
-                         "without an [armature]; a latching coil: a linear coil on a full bridge)")
+                         "without an [armature]; a latching coil on a full bridge: a linear coil or an eddy "
+                         "term, or on a supply that sinks a curve too)")
 
 
 def _read_boost(s: "_Section") -> tuple:
@@ -1554,6 +1558,10 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                                                 "bus with the converter drawing is a linear coil's)")
     elif hold.mode == "latch" and _boosted_latch_refusal(coil, switch, supply, armature, latch):
         key, why = _boosted_latch_refusal(coil, switch, supply, armature, latch)
+    elif hold.mode == "latch" and freewheel.type == "clamp":
+        key, why = "freewheel.type", ("a latching coil's pulses from the boost with a clamp across the switch "
+                                      "(the clamp's draw after each pulse is the main bus's: modelled without "
+                                      "a boost only)")
     elif armature is not None and supply.droops and (coil.eddy_resistance or switch.topology == "full_bridge"):
         key, why = "supply.source_resistance", ("a drooping main supply and a moving armature with an eddy-current "
                                                 "term or on a full bridge (the hold's flight on the bus is a plain "
@@ -1816,8 +1824,8 @@ def _read_latch(source: str, data: dict, s: "_Section", pull_in: PullIn) -> tupl
 def _latch_drive(source, path, data, brd, coil, sheet, supply, ambient, thermal, pull_in, hold,
                  release, armature, duty, latch) -> Drive:
     """A latching coil's :class:`Drive`: what it is not designed with is refused in one line.
-    A moving armature takes a linear coil or its open and seated flux-linkage curves
-    (:func:`coildrive.design.latch.seat_run`), not an eddy-current term."""
+    A moving armature takes a linear coil or its open and seated flux-linkage curves, either
+    with an eddy-current term (:func:`coildrive.design.latch.seat_run`)."""
     why = None
     if coil.drop_out_voltage:
         key, why = "coil.drop_out_voltage", ("a drop-out voltage: it stays where its last pulse put it "
@@ -1826,10 +1834,6 @@ def _latch_drive(source, path, data, brd, coil, sheet, supply, ambient, thermal,
         key = "coil.operate_time" if coil.operate_time else "coil.release_time"
         why = ("the datasheet's operate or release time: they time a monostable coil's peak and "
                "release, which it does not have")
-    elif coil.eddy_resistance and armature is not None:
-        key, why = "coil.eddy_resistance", ("an eddy-current term and a moving [armature] together (the set "
-                                            "pulse's seat run takes no eddy term, and the energy balance "
-                                            "cannot tell the eddy resistance's share from the armature's)")
     elif thermal.resistance > 0 and not thermal.capacity > 0:
         key, why = "thermal.capacity", ("no heat capacity (the pulses' heat and the interval between "
                                         "them need it: give thermal.capacity or time_constant)")
@@ -1840,12 +1844,14 @@ def _latch_drive(source, path, data, brd, coil, sheet, supply, ambient, thermal,
 
 
 def _check_latch(source: str, switch: Switch, freewheel: Freewheel, latch: Latch,
-                 armature: Armature | None = None) -> None:
+                 armature: Armature | None = None, supply: Supply | None = None) -> None:
     """A latching coil's circuit: a full bridge reverses one coil (no [reset_coil]); one
     switch per winding (low or high side) needs the reset winding. A moving armature is
     the mechanically latched one (a catch holds it seated, the reset winding trips the
     catch): with a reset winding only, since reversing one coil unlatches only a
-    permanent-magnet armature, which the armature model does not have."""
+    permanent-magnet armature, which the armature model does not have. A clamp across the
+    switch on a stiff bus (each decay draws from the bus: the pulse energies take it), not
+    on the drooping one."""
     if switch.topology == "full_bridge" and latch.reset_coil is not None:
         raise InputError(source, "reset_coil", "a full bridge resets the one coil with the other "
                          "polarity: expected [reset_coil] left out (or a low- or high-side board)")
@@ -1854,10 +1860,11 @@ def _check_latch(source: str, switch: Switch, freewheel: Freewheel, latch: Latch
                          "by a permanent magnet, which the armature model does not have: expected "
                          "[armature] left out, or a reset winding ([reset_coil]) on a low- or "
                          "high-side board (a catch that the reset winding trips)")
-    if freewheel.type == "clamp":
-        raise InputError(source, "freewheel.type", "\"clamp\" with a latching coil: a clamp across the "
-                         "switch draws from the bus after each pulse, which the pulse energies do not "
-                         "model yet; expected \"diode\", \"zener\" or \"resistor\"")
+    if freewheel.type == "clamp" and supply is not None and supply.droops:
+        raise InputError(source, "freewheel.type", "\"clamp\" with a latching coil on the drooping bus "
+                         "(supply.source_resistance): the clamp keeps drawing from the capacitor through "
+                         "each pulse's decay, which its droop and recharge do not model yet; expected "
+                         "\"diode\", \"zener\" or \"resistor\", or a stiff bus")
     if freewheel.split_decay:
         raise InputError(source, "freewheel.split_decay", "a latching coil has no hold to decay slowly "
                          "in: expected split_decay left out")
@@ -1890,6 +1897,6 @@ def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_
                          f"{freewheel.clamp_voltage:g} V is not above supply.max ({supply.max:g} V): "
                          "the clamp would conduct with the switch off")
     if latch is not None:
-        _check_latch(source, switch, freewheel, latch, armature)
+        _check_latch(source, switch, freewheel, latch, armature, supply)
     return Drive(path.stem, coil, supply, ambient, thermal, pull_in, hold, release, brd, switch,
                  freewheel, armature, source, duty, latch=latch)

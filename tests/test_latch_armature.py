@@ -28,6 +28,27 @@ def bolt():
     return drive, design_latch(drive)
 
 
+def bolt_circuit(drive, coil_temp, rf, lf):
+    """The bolt's set winding at one corner, written afresh: ``(R_coil, R_on, R_off ohm,
+    V_off V, L_c H, beta 1/m, L(x), the opening force(x) N)`` with ``L(x) = L_c / (1 + beta
+    x)`` through the inductances measured open and seated (the sense in the coil path, the
+    freewheel diode + resistor)."""
+    a, b = drive.armature, drive.board
+    r_coil = drive.coil.resistance * (1 + ALPHA * (coil_temp - drive.coil.reference_temp)) * rf
+    r_on = r_coil + drive.switch.on_resistance + b.sense.resistance            # sense in the coil path
+    r_off = r_coil + b.sense.resistance + drive.freewheel.resistance
+    lc, lo, s = a.inductance_closed * lf, a.inductance_open * lf, a.stroke
+    beta = (lc / lo - 1.0) / s
+
+    def ind(x):
+        return lc / (1 + beta * x)
+
+    def opening(x):
+        return a.spring_preload + a.spring_rate * (s - x) + a.load_force
+
+    return r_coil, r_on, r_off, drive.freewheel.diode_drop, lc, beta, ind, opening
+
+
 def _set_pulse_reference(drive, supply, coil_temp, rf, lf, t_long, bus=None, t_short=None):
     """The set pulse at one corner by solve_ivp: the RL circuit with L(x) = L_c / (1 + beta x)
     written as V = R i + L(x) di/dt + i dL/dx dx/dt, the co-energy force 1/2 i^2 |dL/dx|
@@ -38,22 +59,12 @@ def _set_pulse_reference(drive, supply, coil_temp, rf, lf, t_long, bus=None, t_s
     and its decay: V int i dt, R_coil int i^2 dt, the magnetic force's work J; the current at
     the pulse's end (``.i_top``), at ``t_short`` (``.i_short``), and the lowest bus over the
     pulse (``.low``) as attributes."""
-    a, b = drive.armature, drive.board
-    r_coil = drive.coil.resistance * (1 + ALPHA * (coil_temp - drive.coil.reference_temp)) * rf
-    r_on = r_coil + drive.switch.on_resistance + b.sense.resistance            # sense in the coil path
-    r_off = r_coil + b.sense.resistance + drive.freewheel.resistance
-    v_off = drive.freewheel.diode_drop
-    lc, lo, s = a.inductance_closed * lf, a.inductance_open * lf, a.stroke
-    beta = (lc / lo - 1.0) / s
-
-    def ind(x):
-        return lc / (1 + beta * x)
+    a = drive.armature
+    r_coil, r_on, r_off, v_off, lc, beta, ind, opening = bolt_circuit(drive, coil_temp, rf, lf)
+    s = a.stroke
 
     def slope(x):   # dL/dx, H/m (negative: L grows as the gap closes)
         return -lc * beta / (1 + beta * x) ** 2
-
-    def opening(x):
-        return a.spring_preload + a.spring_rate * (s - x) + a.load_force
 
     def feed(y):   # C du/dt, A
         return 0.0 if bus is None else (supply - y[6]) / bus[0] - y[0]

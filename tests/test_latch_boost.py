@@ -293,6 +293,7 @@ BOOST = ("[supply]\n", "[supply]\nboost = \"40 V\"\nboost_capacitance = \"220 uF
               "[freewheel]")], [], "armature"),
     (VALVE, [("inductance_tolerance = 0.15\n", "inductance_tolerance = 0.15\neddy_resistance = \"200 ohm\"\n")],
      [], "coil.eddy_resistance"),
+    (VALVE, [('type = "diode"\n', 'type = "clamp"\nclamp_voltage = "60 V"\n')], [], "freewheel.type"),
 ])
 def test_what_a_boosted_latch_refuses_is_one_line(tmp_path, path, edits, args, key):
     src = path

@@ -127,15 +127,21 @@ def test_pulses_and_their_fast_decay_into_the_bus_against_solve_ivp(bridge):
     assert {c.name for c in d.checks} >= {"set_bus", "reset_bus"}
 
 
+def simulated(path, tmp_path):
+    """``coildrive simulate PATH`` at 12 V with the coil at 20 degC (a real subprocess): the
+    CSV's columns by name."""
+    csv = tmp_path / "s.csv"
+    r = run_cli("simulate", str(path), "--supply", "12", "--coil-temp", "20", "--csv", str(csv))
+    assert r.returncode == 0, r.stderr
+    return np.genfromtxt(csv, delimiter=",", names=True)
+
+
 def test_simulate_check_and_the_device(bridge, tmp_path):
     path, drive, d = bridge
     r = run_cli("design", str(path), "--json")
     assert r.returncode == 0, r.stderr
     assert json.loads(r.stdout)["latch"]["recharge_interval_s"] > 0
-    csv = tmp_path / "s.csv"
-    r = run_cli("simulate", str(path), "--supply", "12", "--coil-temp", "20", "--csv", str(csv))
-    assert r.returncode == 0, r.stderr
-    data = np.genfromtxt(csv, delimiter=",", names=True)
+    data = simulated(path, tmp_path)
     p = d.latch.pulses[0]
     r_on, r_off, l, v_d = _loop(drive, 20.0, 1.0, 1.0)
     i0, u0 = _pulse(12.0, r_on, l, p.time_s)
@@ -156,9 +162,10 @@ def test_simulate_check_and_the_device(bridge, tmp_path):
         assert f["end_current_a"]["min"] >= q.end_current_a * (1 - 1e-12)
 
 
-def test_a_curve_on_the_drooping_bridge_is_refused_in_one_line(tmp_path):
-    path = droop_bridge(tmp_path, True)
+def test_a_curve_on_a_drooping_bridge_that_cannot_sink_is_refused_in_one_line(tmp_path):
+    # (on a supply that sinks it is designed: tests/test_latch_bridge_droop_curves.py)
+    path = droop_bridge(tmp_path, False)
     path.write_text(path.read_text().replace('inductance = "15 mH"\n', _table()))
     r = run_cli("design", str(path))
     assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1, r.stderr
-    assert ": hold.mode: " in r.stderr and "flux-linkage curve" in r.stderr
+    assert ": supply.sink: " in r.stderr and "flux-linkage curve" in r.stderr

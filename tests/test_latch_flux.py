@@ -309,14 +309,16 @@ def test_cli_design_simulate_header_and_the_bench(tmp_path, bridge):
             assert rows["set_end_current"] == rows["reset_end_current"] == rows["set_time_to_zero"] == "pass"
 
 
-def device_reports(d, tmp_path, supply: float = 9.0, coil_temp: float = 100.0) -> list:
+def device_reports(d, tmp_path, supply: float = 9.0, coil_temp: float = 100.0, given: bool = False) -> list:
     """``[(expected ok, check report)]`` of the model's latch device at ``supply`` V with the
-    coil at ``coil_temp`` degC: as designed (passes), and with 40 % more coil resistance (fails)."""
+    coil at ``coil_temp`` degC: as designed (passes), and with 40 % more coil resistance (fails).
+    ``given``: the check is told the supply (``check --supply``; a bus above the board's
+    supply-sense range)."""
     out = []
     for scale, ok in ((1.0, True), (1.4, False)):
         dev = LatchDevice(d, DeviceOptions(noise_codes=0.5, seed=5, supply=supply, coil_temp=coil_temp,
                                            resistance_scale=scale))
         msgs, _ = run_device(dev, 0.05 + 2.2 * dev.period, step=0.05)
         out.append((ok, check_latch_capture(capture_of(msgs, tmp_path / f"c{scale}.cdcap"), d,
-                                            coil_temp=coil_temp)))
+                                            supply=supply if given else None, coil_temp=coil_temp)))
     return out

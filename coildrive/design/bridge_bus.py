@@ -20,7 +20,6 @@ from ..model import bus_decay, flux_bus_decay
 from ..model.circuit import full_bridge
 from ..model.eddy import EddyCoil
 from ..model.eddy import terminal as eddy_terminal
-from ..model.flux import FluxCoil
 from ..model.supply import bus_floor
 from .figures import worst
 from .result import Check, ReleaseResult, SupplyResult
@@ -108,21 +107,9 @@ def decays(drive: Drive, res, i0, peak_time, peak_end) -> list[bus_decay.FastDec
     lp = release_loop(res)
     lo, hi = bus_range(drive, res, peak_time, peak_end)
     starts = [lo + (hi - lo) * k / (BRIDGE_STARTS - 1) for k in range(BRIDGE_STARTS)]
-    coil, eddy = lp.inductance, {}
-    if isinstance(coil, EddyCoil):
-        coil, eddy = coil.magnetising, {"r_e": coil.resistance}
-    if isinstance(coil, FluxCoil):   # stepped: every start in one run
-        fast = flux_bus_decay.decay if s.sink else flux_bus_decay.decay_no_sink
-        d = fast(i0, np.stack(np.broadcast_arrays(*starts)), drive.release.current, lp.v_on, s.source_resistance,
-                 s.capacitance, lp.r_off, coil, lp.diode(drive), **eddy)
-        return [bus_decay.FastDecay(*(getattr(d, f.name)[k] for f in dataclasses.fields(d)))
-                for k in range(BRIDGE_STARTS)]
-    if eddy:
-        fast = bus_decay.eddy_decay if s.sink else bus_decay.eddy_decay_no_sink
-    else:
-        fast = bus_decay.decay if s.sink else bus_decay.decay_no_sink
-    runs = [fast(i0, v0, drive.release.current, lp.v_on, s.source_resistance,
-                 s.capacitance, lp.r_off, coil, lp.diode(drive), *eddy.values()) for v0 in starts]
+    coil = lp.inductance
+    runs = flux_bus_decay.fast_decays(coil, i0, starts, drive.release.current, lp.v_on, s.source_resistance,
+                                      s.capacitance, lp.r_off, lp.diode(drive), s.sink)
     i_conv = converter_draw(drive, res, peak_end)
     if i_conv is not None:   # (a plain linear coil: config refuses the rest after a boost)
         # the converter may be idle at the turn-off (recharged) or drawing its most: the

@@ -34,7 +34,11 @@ the on-time's integrals by :func:`coildrive.model.flux.rise_integrals` (exact ov
 top), and ``stored_j`` is ``int i dpsi`` (docs/design-method.md, *A saturating coil*). With
 ``[armature]`` the set winding's open and seated curves: the seat run
 (:func:`seat_run`, :mod:`coildrive.model.gap_curves`) and after the seat the seated
-curve's exact segment (:func:`after_seat`); the decay down the seated curve.
+curve's exact segment (:func:`after_seat`); the decay down the seated curve. With an
+eddy-current term too (the set winding's) the seat run's flux is the magnetising branch's
+behind the loop's Thevenin pair and the eddy resistance's energy is its own
+(:func:`on_eddy_energy`, the release's by :func:`coildrive.model.eddy.release_eddy_energy`);
+the armature's share stays the balance's remainder.
 """
 
 from __future__ import annotations
@@ -53,9 +57,11 @@ from ..model import latch as latch_model
 from ..model import bus_decay
 from ..model.bridge import fast_switch_voltage, pump_up
 from ..model.circuit import freewheel_element_energy, full_bridge, loop, open_inductance
-from ..model.eddy import EddyCoil, stored_energy
+from ..model.eddy import EddyCoil, release_eddy_energy, stored_energy
+from ..model.eddy import terminal as eddy_terminal
 from ..model.flux import FluxCoil
 from ..model.flux import rise_integrals as flux_rise_integrals
+from ..model.flux_bus_decay import fast_decays
 from ..model.rl import decay_integrals, decay_time, rise_current, rise_integrals
 from ..model.topology import topology_of
 from .checks import SAFETY_CAUTION
@@ -98,7 +104,9 @@ class PulseResult:
     ``current_a``; ``force_time_s`` to ``force_current_a`` (``current_margin`` x it);
     ``governed_by`` which of the two set the length. ``end_current_a``: the current at
     the end of the shortest pulse at the worst corner. Energies of one pulse at
-    ``energy_corner``: ``supply_j`` (from the supply while on), ``copper_j`` (the coil's
+    ``energy_corner``: ``supply_j`` (from the supply while on; with a clamp across the
+    switch during the decay too, whose current the bus drives through the coil and the
+    clamp), ``copper_j`` (the coil's
     copper, pulse and decay), ``switch_sense_j`` (the switches and the sense resistor),
     ``freewheel_j`` (the freewheel path: a bridge's two body diodes), ``returned_j`` (back
     to the bus: a bridge's fast decay; 0 otherwise), ``eddy_j`` (an eddy-current term's
@@ -121,7 +129,7 @@ class PulseResult:
 
     With ``[armature]`` (module docstring): the set pulse's ``armature_j`` is the energy the
     moving armature takes (spring, load, damping and the seat impact; ``supply_j`` is then
-    the sum of the other five), ``seat_time_s`` the latest time from switch-on to the
+    the sum of the others, ``eddy_j`` included), ``seat_time_s`` the latest time from switch-on to the
     armature at rest on the seat (at ``seat_corner``); the reset pulse's ``open_time_s`` the
     latest time from its start to the armature at rest on the open stop (the catch trips
     at ``current_a``, then spring and load open it). ``None`` / 0 without an armature.
@@ -344,7 +352,8 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
         # to the shortest pulse's end), the energies on the stiff bus
         i_end = (seat_run(wd, lp, pts, peak_time=short)[0].peak_end_current if droops else
                  after_seat(pin, p_arm, short, v, r_on)[0])
-        i_top, q_on, s_on = seated_pulse(wd, lp, pts, pin, p_arm, long_)
+        stiff = stiff_run(wd, lp, pts, pin, p_arm)
+        i_top, q_on, s_on = after_seat(*stiff, long_, v, r_on)
     else:
         i_end = rise_current_at(wd, lp, short)
         i_top, q_on, s_on = plain_pulse(lp, long_)
@@ -355,19 +364,29 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     sense = drive.board.sense
     n_sw = 2.0 if bridge else 1.0
     sense_decay = bridge or sense.position == "coil"
-    supply_e = v * q_on
+    # a clamp across the switch: the decay's current flows from the bus through the coil and
+    # the clamp (L di/dt = -(R_off i + V_clamp - V)), so the bus gives V int i dt then too
+    supply_e = v * q_on + (v * q_d if drive.freewheel.type == "clamp" else 0.0 * q_d)
     copper = lp.r_coil * (s_on + s_d)
     r_sense = sense.resistance * pts.sense_factor
     sw_sense = n_sw * drive.switch.on_resistance * s_on + r_sense * (s_on + (s_d if sense_decay else 0.0))
     fw = freewheel_element_energy(wd, rel, q_d, s_d)
     returned = v * q_d if bridge else 0.0 * q_d
     stored = stored_energy(ind.magnetising if isinstance(ind, EddyCoil) else ind, i_top)
+    # an eddy term's share. Without an armature by the balance (the pulse starts and ends at
+    # zero flux: what the supply gave that the loop's elements did not take went into R_e);
+    # with one, the seat run's and the seated coil's on-time share (on_eddy_energy) and the
+    # release's (the conduction, then the flux's tail through R_e)
+    if isinstance(ind, EddyCoil) and pin is not None and ticks:
+        eddy_e = (on_eddy_energy(*stiff, long_, v, r_on)
+                  + release_eddy_energy(i_top, rel.r_off, rel.v_off, ind))
+    elif isinstance(ind, EddyCoil) and pin is None:
+        eddy_e = supply_e - copper - sw_sense - fw - returned
+    else:
+        eddy_e = 0.0 * supply_e
     # the armature's share: what the supply gave that no element took (zero current at both ends)
-    moved = supply_e - copper - sw_sense - fw - returned if pin is not None and ticks else 0.0 * supply_e
-    # an eddy term's share, by the same balance (the pulse starts and ends at zero flux: what
-    # the supply gave that the loop's elements did not take went into R_e)
-    eddy_e = (supply_e - copper - sw_sense - fw - returned if isinstance(ind, EddyCoil) and pin is None
-              else 0.0 * supply_e)
+    moved = (supply_e - copper - sw_sense - fw - returned - eddy_e if pin is not None and ticks
+             else 0.0 * supply_e)
     k_e = worst(supply_e)
     # the switch voltage at the end of the longest pulse, and a pumped bus
     v_sw = rel.switch_voltage(wd, i_top)
@@ -454,12 +473,16 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
 def bus_decays(drive: Drive, lp, rel, i0) -> list | None:
     """A full bridge's fast decay of ``i0`` A after a pulse on the drooping bus (else
     ``None``): the current returns through two body diodes into the bus behind ``R_s`` and
-    ``C`` (:mod:`coildrive.model.bus_decay`, closed form; a supply that cannot sink:
-    ``decay_no_sink``), from each of :data:`~coildrive.model.bus_decay.STARTS` starting buses
+    ``C`` (:func:`coildrive.model.flux_bus_decay.fast_decays`: a linear coil's closed form
+    of :mod:`coildrive.model.bus_decay`, with an eddy term ``eddy_decay``, a flux-linkage
+    curve's stepped run, either way; a supply that cannot sink: the ``*_no_sink`` forms;
+    with an eddy term ``i0`` is the magnetising current), from each of
+    :data:`~coildrive.model.bus_decay.STARTS` starting buses
     evenly between the source ``V_s`` (``lp.v_on``) and the lowest the bus can be at the
     pulse's end: a pulse starts from at least ``(1 - recharge_tolerance) V_s`` (the interval
     waits for that) and, its current rising to ``i0``, cannot pull the bus below the floor
-    ``V_s - R_s i0`` under it (:func:`~coildrive.model.supply.bus_floor`), nor below ``-2
+    ``V_s - R_s i0`` under it (:func:`~coildrive.model.supply.bus_floor`; with an eddy term
+    the terminal current ``(V_s + R_e i0)/(R + R_e)`` in place of ``i0``), nor below ``-2
     V_d`` (the body diodes). :class:`~coildrive.model.bus_decay.FastDecay` per start."""
     from ..model.supply import bus_floor
 
@@ -468,11 +491,14 @@ def bus_decays(drive: Drive, lp, rel, i0) -> list | None:
         return None
     v_s = np.asarray(lp.v_on, float)
     v_d = np.asarray(rel.diode(drive), float)
-    lo = np.maximum(np.minimum((1.0 - drive.latch.recharge_tolerance) * v_s, bus_floor(v_s, s.source_resistance, i0)),
+    ind = rel.inductance
+    # the bus under the pulse's end: the terminal current draws it (with an eddy term above
+    # the magnetising i0 while the flux still rises: its value at the source, the most)
+    draw = eddy_terminal(i0, v_s, lp.r_on, ind.resistance) if isinstance(ind, EddyCoil) else i0
+    lo = np.maximum(np.minimum((1.0 - drive.latch.recharge_tolerance) * v_s, bus_floor(v_s, s.source_resistance, draw)),
                     -2.0 * v_d)
-    fast = bus_decay.decay if s.sink else bus_decay.decay_no_sink
-    return [fast(i0, lo + (v_s - lo) * k / (bus_decay.STARTS - 1), 0.0, v_s, s.source_resistance, s.capacitance,
-                 rel.r_off, rel.inductance, v_d) for k in range(bus_decay.STARTS)]
+    starts = [lo + (v_s - lo) * k / (bus_decay.STARTS - 1) for k in range(bus_decay.STARTS)]
+    return fast_decays(ind, i0, starts, 0.0, v_s, s.source_resistance, s.capacitance, rel.r_off, v_d, s.sink)
 
 
 def time_to_zero(drive: Drive, lp, rel, i0, fast=None):
@@ -636,7 +662,9 @@ def release_loop(drive: Drive, pts: Points):
 def seat_run(drive: Drive, lp, pts: Points, peak_time=None, stiff: bool = False):
     """The set pulse held on from rest at the open stop until the armature rests on the seat,
     at the points (:func:`coildrive.model.armature_runs.pull_in`; ``peak_time`` s asks for
-    the current then), and its params. On a drooping bus (``supply.source_resistance``,
+    the current then), and its params. With an eddy term (``coil.eddy_resistance``) the
+    flux is the magnetising branch's behind the loop's Thevenin pair (the run's currents
+    the magnetising current's, its integrals the terminal current's). On a drooping bus (``supply.source_resistance``,
     unless ``stiff``) the bulk capacitor is a state of the run, full (at the source's
     voltage, ``lp.v_on``) at switch-on: the seat time, the current at ``peak_time`` and
     the lowest bus up to it are the drooping bus's."""
@@ -645,7 +673,7 @@ def seat_run(drive: Drive, lp, pts: Points, peak_time=None, stiff: bool = False)
 
     s = drive.supply
     bus = (s.source_resistance, s.capacitance) if s.droops and not stiff else (0.0, 0.0)
-    p = params_from_loop(drive.armature, lp, pts.l_factor, bus=bus)
+    p = params_from_loop(drive.armature, lp, pts.l_factor, drive.coil.eddy_resistance, bus=bus)
     return pull_in(p, peak_time=peak_time), p
 
 
@@ -653,20 +681,43 @@ def seated_pulse(drive: Drive, lp, pts: Points, pin, p, t):
     """:func:`after_seat` of a pulse ``t`` s long on the stiff bus at ``lp.v_on`` (the
     energies' bus: a drooping one gives less), from the seat run ``pin`` (params ``p``) when
     that is on the stiff bus already, else from a stiff run of its own."""
-    if drive.supply.droops:
-        pin, p = seat_run(drive, lp, pts, stiff=True)
-    return after_seat(pin, p, t, lp.v_on, lp.r_on)
+    return after_seat(*stiff_run(drive, lp, pts, pin, p), t, lp.v_on, lp.r_on)
+
+
+def stiff_run(drive: Drive, lp, pts: Points, pin, p):
+    """The seat run and its params on the stiff bus at ``lp.v_on``: ``(pin, p)`` as given
+    when the bus is stiff already, else a stiff run of its own."""
+    return seat_run(drive, lp, pts, stiff=True) if drive.supply.droops else (pin, p)
 
 
 def after_seat(pin, p, t, v, r_on):
     """Current A, ``int i dt`` A*s and ``int i^2 dt`` A^2*s ``t`` s after switch-on, ``t``
     past every seat time: the run up to the seat, then the seated coil's rise (the RL
-    segment, or the seated curve's exact quadrature: ``p.coil_closed``)."""
+    segment, or the seated curve's exact quadrature: ``p.coil_closed``). With an eddy term
+    the current is the magnetising current, the integrals the terminal current's
+    (:mod:`coildrive.model.eddy`); :func:`on_eddy_energy` gives the eddy resistance's share."""
     dt = np.maximum(t - pin.seat_time, 0.0)
     seated = p.coil_closed
     q, sq = rise_integrals(dt, pin.seat_current, v, r_on, seated)
     return (rise_current(dt, pin.seat_current, v, r_on, seated), pin.seat_charge + q,
             pin.seat_square + sq)
+
+
+def on_eddy_energy(pin, p, t, v, r_on):
+    """J the eddy resistance ``R_e`` takes over a set pulse ``t`` s long on the stiff bus at
+    ``v`` V through ``r_on`` ohm, ``t`` past every seat time (0 without an eddy term). The
+    branch's voltage is ``R_e (i - i_m) = v - r_on i`` (``i`` the terminal current), so up
+    to the seat it is ``(v^2 t_s - 2 v r_on int i dt + r_on^2 int i^2 dt) / R_e`` from the
+    seat run's integrals; after the seat the seated branch's closed form
+    (:func:`coildrive.model.eddy.rise_integrals`)."""
+    if p.eddy is None:
+        return 0.0 * np.asarray(v, float)
+    from ..model import eddy
+
+    t_s = pin.seat_time
+    run = (v * v * t_s - 2.0 * v * r_on * pin.seat_charge + r_on * r_on * pin.seat_square) / p.eddy
+    dt = np.maximum(t - t_s, 0.0)
+    return np.maximum(run, 0.0) + eddy.rise_integrals(dt, pin.seat_current, v, r_on, p.coil_closed)[2]
 
 
 def _seats_check(drive: Drive, pin, p, pts: Points, r: PulseResult, short=None) -> Check:
@@ -706,7 +757,7 @@ def _opens(drive: Drive, pts: Points, t_trip, r: PulseResult) -> tuple[PulseResu
     from ..model.armature import params_from_loop
     from ..model.armature_runs import release
 
-    p = params_from_loop(drive.armature, pulse_loop(drive, pts), pts.l_factor)
+    p = params_from_loop(drive.armature, pulse_loop(drive, pts), pts.l_factor, drive.coil.eddy_resistance)
     rb = release(p, 0.0)
     t_open = np.where(rb.status == 0, t_trip + rb.open_time, np.inf)
     k = worst(t_open)

@@ -30,6 +30,7 @@ import dataclasses
 import numpy as np
 
 from ..config import Drive
+from ..model.rl import decay_integrals
 from .latch import (LatchDesign, Points, plain_pulse, pulse_loop, release_loop, rise_current_at,
                     seat_run, seated_pulse, table_lengths, time_to_zero, winding_drive)
 from . import latch_boost
@@ -44,7 +45,8 @@ def _figures(wd: Drive, pts: Points, current: float, t_short, t_long) -> tuple:
     """The :data:`FIGURES` of one pulse at the points (``t_short``/``t_long``: its shortest
     and longest length s, per point or one for all); with a moving armature (the set
     pulse) the time is the seat time and the energy and the decay NaN where it is not
-    seated by the longest pulse's end."""
+    seated by the longest pulse's end. The energy is the supply's (with a clamp across the
+    switch, the decay's draw too)."""
     lp = pulse_loop(wd, pts)
     rel = release_loop(wd, pts)
     if wd.armature is None:
@@ -57,7 +59,11 @@ def _figures(wd: Drive, pts: Points, current: float, t_short, t_long) -> tuple:
         i_end = pin.peak_end_current
         i_top, q_on, _ = seated_pulse(wd, lp, pts, pin, p, t_long)
         i_top, q_on = np.where(seated, i_top, np.nan), np.where(seated, q_on, np.nan)
-    return (t_req, i_end, lp.v_on * q_on, time_to_zero(wd, lp, rel, i_top))
+    t_zero = time_to_zero(wd, lp, rel, i_top)
+    if wd.freewheel.type == "clamp":   # the decay draws from the bus too (latch._pulse)
+        q_on = q_on + decay_integrals(np.where(np.isfinite(t_zero), t_zero, 0.0), np.nan_to_num(i_top), rel.r_off,
+                                      rel.v_off, rel.inductance)[0]
+    return (t_req, i_end, lp.v_on * q_on, t_zero)
 
 
 def _boost_figures(wd: Drive, pts: Points, p, v_factor, c_factor) -> tuple:

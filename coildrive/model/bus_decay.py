@@ -230,6 +230,28 @@ def _eddy_run(b, i0, v0, i_drop, v_s, v_d, r_e):
                      -u_z - 2.0 * v_d, charge), at
 
 
+def eddy_trace(t, i0, v0, v_s, r_s, c, r, l, v_d, r_e, sink: bool = True):
+    """The terminal current (A, at least 0) and the bus (V) ``t`` s (an array) into
+    :func:`eddy_decay` (``eddy_decay_no_sink`` without ``sink``) of one point from a
+    magnetising current ``i0`` A and the bus at ``v0`` V, up to the terminal current's
+    zero: the same closed forms (:func:`coildrive.model.supply.state_from` in ``u = -(v +
+    2 V_d)``; without a sink the source's circuit until the feed blocks, then the
+    capacitor alone's from the state there)."""
+    t = np.asarray(t, float)
+    if sink:
+        b = supply.bus(-(v_s + 2.0 * v_d), r_s, c, r, l, r_e)
+        i_m, u = supply.state_from(t, b, i0, -(v0 + 2.0 * v_d))
+        return np.maximum(supply.terminal(i_m, u, b), 0.0), -u - 2.0 * v_d
+    _, (b_fed, at), none, (t_a, i_a, v_a), blocked = _eddy_no_sink(i0, v0, 0.0, v_s, r_s, c, r, l, v_d, r_e)
+    t_a, i_a, v_a, blocked = (x.item() for x in (t_a, i_a, v_a, blocked))
+    late = (t > t_a) & bool(blocked)
+    i_f, u_f = at(np.minimum(t, t_a))
+    i_n, u_n = supply.state_from(np.maximum(t - t_a, 0.0), none, i_a, -(v_a + 2.0 * v_d))
+    i = np.where(late, supply.terminal(i_n, u_n, none), supply.terminal(i_f, u_f, b_fed))
+    u = np.where(late, u_n, u_f)
+    return np.maximum(i, 0.0), -u - 2.0 * v_d
+
+
 def eddy_decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e) -> FastDecay:
     """:func:`eddy_decay` on a supply that cannot sink (as :func:`decay_no_sink`): with the
     source until the bus reaches ``v_s`` V (it rises monotonically to its first maximum: a
@@ -237,6 +259,12 @@ def eddy_decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e) -> FastDecay
     (``R_s -> inf``: ``A = [[-k R/L, k/L], [-k/C, -k/(R_e C)]]``, steady state 0), until
     the terminal current's zero; the bus rises to it and stays there, the flux's tail
     through ``R_e`` after it."""
+    return _eddy_no_sink(i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e)[0]
+
+
+def _eddy_no_sink(i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e):
+    """:func:`eddy_decay_no_sink`: ``(FastDecay, the fed stretch's circuit and its at(t),
+    the capacitor alone's circuit, (t_a s, i_a A, v_a V) where the feed blocks, blocked)``."""
     i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e = np.broadcast_arrays(
         *(np.asarray(x, float) for x in (i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e)))
     b_fed = supply.bus(-(v_s + 2.0 * v_d), r_s, c, r, l, r_e)
@@ -259,8 +287,9 @@ def eddy_decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e) -> FastDecay
     t_zero = np.where(blocked, t_a + alone.zero_time, fed.zero_time)
     bus_top = np.where(blocked, v_end, fed.bus_top)
     when = np.where(blocked, t_zero, fed.bus_max_time)
-    return FastDecay(t_drop, t_zero, bus_top, np.maximum(bus_top, v_s), np.where(bus_top > v_s, when, np.inf),
-                     v_end, q_a + np.where(blocked, c * (v_end - v_a), 0.0))
+    return (FastDecay(t_drop, t_zero, bus_top, np.maximum(bus_top, v_s), np.where(bus_top > v_s, when, np.inf),
+                      v_end, q_a + np.where(blocked, c * (v_end - v_a), 0.0)),
+            (b_fed, at), none, (t_a, i_a, v_a), blocked)
 
 
 def _fed_stretch(i0, v0, i_drop, v_s, r_s, c, r, l, v_d):

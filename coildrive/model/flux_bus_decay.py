@@ -52,9 +52,10 @@ import dataclasses
 
 import numpy as np
 
-from . import flux, flux_bus
+from . import bus_decay, flux, flux_bus
 from .bridge import flux_pump_up
 from .bus_decay import FastDecay
+from .eddy import EddyCoil
 from .flux import FluxCoil
 from .supply import terminal
 
@@ -229,3 +230,74 @@ def decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d, r_e=None)
     when = np.where(blocked, t_zero, fed.bus_max_time)
     return _shaped(FastDecay(t_drop, t_zero, bus_top, np.maximum(bus_top, v_s),
                              np.where(bus_top > v_s, when, np.inf), v_end, q_a + q_b), shape)
+
+
+# --------------------------------------------------------------------------- any coil
+def _split(coil):
+    """``(branch, r_e)``: an :class:`~coildrive.model.eddy.EddyCoil`'s magnetising branch and
+    eddy resistance, else the coil itself and ``None``."""
+    if isinstance(coil, EddyCoil):
+        return coil.magnetising, coil.resistance
+    return coil, None
+
+
+def fast_decays(coil, i0, starts, i_drop, v_s, r_s, c, r, v_d, sink: bool = True) -> list[FastDecay]:
+    """The fast decay of ``i0`` A into the drooping bus from each bus ``v0`` V of ``starts``,
+    whatever the coil: a linear ``L`` H (:func:`coildrive.model.bus_decay.decay`), with an
+    eddy term (an :class:`~coildrive.model.eddy.EddyCoil`: ``eddy_decay``; ``i0`` and
+    ``i_drop`` magnetising currents) or a flux-linkage curve, either way (:func:`decay`,
+    stepped: every start in one run); a supply that cannot sink (``sink`` false): the
+    ``*_no_sink`` forms. One :class:`~coildrive.model.bus_decay.FastDecay` per start."""
+    branch, r_e = _split(coil)
+    if isinstance(branch, FluxCoil):   # stepped: every start in one run
+        run = decay if sink else decay_no_sink
+        d = run(i0, np.stack(np.broadcast_arrays(*starts)), i_drop, v_s, r_s, c, r, branch, v_d, r_e)
+        return [FastDecay(*(getattr(d, f.name)[k] for f in dataclasses.fields(d))) for k in range(len(starts))]
+    if r_e is not None:
+        run = bus_decay.eddy_decay if sink else bus_decay.eddy_decay_no_sink
+        return [run(i0, v0, i_drop, v_s, r_s, c, r, branch, v_d, r_e) for v0 in starts]
+    run = bus_decay.decay if sink else bus_decay.decay_no_sink
+    return [run(i0, v0, i_drop, v_s, r_s, c, r, branch, v_d) for v0 in starts]
+
+
+def trace(t, coil, i0, v0, v_s, r_s, c, r, v_d, sink: bool = True):
+    """The terminal current (A) and the bus (V) ``t`` s (an array) into the fast decay of one
+    point (scalars) from ``i0`` A (with an eddy term the magnetising current) and the bus at
+    ``v0`` V, up to the terminal current's zero, on the circuits of :func:`fast_decays`: a
+    linear coil's closed form (:func:`coildrive.model.bus_decay.trace`), with an eddy term
+    ``eddy_decay``'s (:func:`coildrive.model.bus_decay.eddy_trace`), a curve's stepped run
+    read by its Hermite cubics; a supply that cannot sink too (the source's circuit until
+    the feed blocks, then the capacitor alone's), except a curve without an eddy term, whose
+    run into the capacitor alone is stepped in the falling current
+    (:func:`coildrive.model.bridge.flux_pump_up`) with no time record (``ValueError``).
+    Past the zero the current is 0 and the bus is left where it was (the caller ends there)."""
+    branch, r_e = _split(coil)
+    if not isinstance(branch, FluxCoil) and r_e is None:
+        return bus_decay.trace(t, i0, v0, v_s, r_s, c, r, branch, v_d, sink=sink)
+    i0, v0, v_s, r_s, c, r, v_d = (np.asarray(float(np.ravel(x)[0])) for x in (i0, v0, v_s, r_s, c, r, v_d))
+    r_e = None if r_e is None else float(np.ravel(r_e)[0])
+    if not isinstance(branch, FluxCoil):
+        return bus_decay.eddy_trace(t, i0, v0, v_s, r_s, c, r, float(np.ravel(branch)[0]), v_d, r_e, sink=sink)
+    if not sink and r_e is None:
+        raise ValueError("no trace of a curve's fast decay into the capacitor alone (a supply that cannot sink)")
+    t = np.asarray(t, float)
+    one = branch.with_scale(np.asarray(float(np.ravel(branch.scale)[0])))
+    fed, rec, fb = _decay(i0, np.minimum(v0, v_s), np.asarray(0.0), v_s, r_s, c, r, one, v_d, r_e)
+    t_a, blocked = np.inf, False
+    if not sink:   # where the bus reaches v_s the feed blocks: the capacitor alone from there
+        t0, h, _, _, _, _, u0, u1, du0, du1 = flux_bus.segments(rec)
+        t_u, found = flux_bus.first_crossing(t0, h, u0, u1, du0, du1, -(v_s + 2.0 * v_d), rising=False,
+                                             before=fed.zero_time)
+        blocked = bool(v0 >= v_s) or bool(found and v0 < v_s)
+        t_a = 0.0 if v0 >= v_s else (float(t_u) if blocked else np.inf)
+    i_m, u = flux_bus.state(np.minimum(t, t_a), fb)
+    i = terminal(i_m, u, fb)
+    if blocked:
+        i_a = i0 if v0 >= v_s else flux_bus.state(np.asarray(t_a), fb)[0]
+        v_a = np.maximum(v0, v_s)
+        _, _, alone = _decay(np.asarray(i_a, float), v_a, np.asarray(0.0), v_s, np.asarray(np.inf), c, r, one, v_d,
+                             r_e)
+        late = t > t_a
+        i_n, u_n = flux_bus.state(np.maximum(t - t_a, 0.0), alone)
+        i, u = np.where(late, terminal(i_n, u_n, alone), i), np.where(late, u_n, u)
+    return np.maximum(i, 0.0), -u - 2.0 * v_d

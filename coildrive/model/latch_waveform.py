@@ -40,11 +40,12 @@ import numpy as np
 
 from ..config import Drive
 from . import boost as boost_model
-from . import bus_decay, eddy, flux_bus
+from . import bus_decay, eddy, flux_bus, flux_bus_decay
 from . import supply as bus_model
 from .eddy import EddyCoil
 from .circuit import full_bridge, loop
 from .flux import FluxCoil
+from .flux_bus_decay import fast_decays
 from .rl import decay_current, decay_time, rise_current
 from .topology import coil_voltage
 
@@ -121,11 +122,12 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
     else:   # a bridge's fast decay into the drooping bus: the bus rises as the current returns
         tz = float(fast.zero_time)
         t_d = np.linspace(0.0, tz, points + 1)[1:]
-        i_d, bus_d = fast_trace(drive, rel, i_top, float(bus[-1]), t_d)
+        i_d, bus_d = fast_trace(drive, rel, i_top, float(bus[-1]), t_d)   # (the terminal current)
         i_d[-1] = 0.0   # (the zero, to rounding)
     if r_e is not None:   # the magnetising currents to the terminal current (model.eddy): on, then freewheeling
         i_on = eddy.terminal(i_on, bus, r_on, r_e)
-        i_d = np.maximum(eddy.terminal(i_d, -v_off, r_off, r_e), 0.0)
+        if fast is None:
+            i_d = np.maximum(eddy.terminal(i_d, -v_off, r_off, r_e), 0.0)
     t = np.concatenate([t_on, t_pulse + t_d])
     i = np.concatenate([i_on, i_d])
     on = np.concatenate([np.ones(t_on.size), np.zeros(t_d.size)])
@@ -135,26 +137,27 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
 
 def _fast_args(drive: Drive, rel, i0: float, v0: float) -> tuple:
     s = drive.supply
-    return (i0, v0, *(float(np.ravel(x)[0]) for x in (rel.supply, s.source_resistance, s.capacitance, rel.r_off,
-                                                      rel.inductance, rel.diode(drive))))
+    return (rel.inductance, i0, v0, *(float(np.ravel(x)[0]) for x in (rel.supply, s.source_resistance,
+                                                                      s.capacitance, rel.r_off, rel.diode(drive))))
 
 
 def fast_decay_after(drive: Drive, rel, i0: float, v0: float, i_drop: float = 0.0):
     """A full bridge's fast decay of ``i0`` A into the drooping bus from the bus at ``v0`` V
-    at the pulse's end (:func:`coildrive.model.bus_decay.decay`, or ``decay_no_sink``):
-    its :class:`~coildrive.model.bus_decay.FastDecay` (``drop_time`` to ``i_drop`` A), or
-    ``None`` off a bridge or on a stiff bus. ``rel``: the fast decay's loop (a linear coil)."""
+    at the pulse's end (:func:`coildrive.model.flux_bus_decay.fast_decays`: a linear coil,
+    a flux-linkage curve or an eddy term, whose ``i0`` and ``i_drop`` are magnetising
+    currents): its :class:`~coildrive.model.bus_decay.FastDecay` (``drop_time`` to
+    ``i_drop`` A), or ``None`` off a bridge or on a stiff bus. ``rel``: the fast decay's
+    loop at one point."""
     if not (drive.supply.droops and full_bridge(drive)):
         return None
-    a = _fast_args(drive, rel, i0, v0)
-    fast = bus_decay.decay if drive.supply.sink else bus_decay.decay_no_sink
-    return fast(a[0], a[1], i_drop, *a[2:])
+    coil, i0, v0, v_s, r_s, c, r, v_d = _fast_args(drive, rel, i0, v0)
+    return fast_decays(coil, i0, [v0], i_drop, v_s, r_s, c, r, v_d, drive.supply.sink)[0]
 
 
 def fast_trace(drive: Drive, rel, i0: float, v0: float, t):
-    """The current A and the bus V ``t`` s into :func:`fast_decay_after`'s decay
-    (:func:`coildrive.model.bus_decay.trace`)."""
-    return bus_decay.trace(t, *_fast_args(drive, rel, i0, v0), sink=drive.supply.sink)
+    """The terminal current A and the bus V ``t`` s into :func:`fast_decay_after`'s decay
+    (:func:`coildrive.model.flux_bus_decay.trace`)."""
+    return flux_bus_decay.trace(t, *_fast_args(drive, rel, i0, v0), sink=drive.supply.sink)
 
 
 def boost_of(drive: Drive, r_on: float, inductance: float) -> boost_model.Boost:
@@ -183,19 +186,22 @@ def _seating(drive: Drive, lp, l_factor: float, t_pulse: float, points: int, sup
     """The set pulse with a moving armature (:func:`coildrive.model.armature_sim.simulate`
     from rest at the open stop; on a drooping bus from a full capacitor, a state of the
     run): ``(t, i, gap, bus)``. The armature must rest on the seat when the pulse ends (the
-    catch then holds it, and the decay is the seated coil's); :class:`NotSeated` otherwise."""
+    catch then holds it, and the decay is the seated coil's); :class:`NotSeated` otherwise.
+    With an eddy term ``i`` is the magnetising current (the branch behind the loop's
+    Thevenin pair)."""
     from .armature import params_from_loop
     from .armature_sim import simulate
 
     s = drive.supply
     bus = (s.source_resistance, s.capacitance) if s.droops else (0.0, 0.0)
-    tr = simulate(params_from_loop(drive.armature, lp, l_factor, bus=bus), [(t_pulse, True, points)],
-                  points=points)
+    tr = simulate(params_from_loop(drive.armature, lp, l_factor, drive.coil.eddy_resistance, bus=bus),
+                  [(t_pulse, True, points)], points=points)
     if tr.state != "seated":
         raise NotSeated(f"the armature is not on the seat when the set pulse ends at {supply:g} V, coil "
                          f"{coil_temp:g} degC, so the catch would not hold it")
-    return tr.time, tr.current, tr.position, (np.full(tr.time.shape, float(lp.v_on)) if tr.bus is None
-                                              else tr.bus)
+    # (with an eddy term the magnetising current: pulse() turns it into the terminal current)
+    i = tr.current if tr.magnetising_current is None else tr.magnetising_current
+    return tr.time, i, tr.position, (np.full(tr.time.shape, float(lp.v_on)) if tr.bus is None else tr.bus)
 
 
 def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float,
