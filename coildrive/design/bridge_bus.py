@@ -84,12 +84,29 @@ def bus_range(drive: Drive, res, peak_time, peak_end) -> tuple[np.ndarray, np.nd
     # never below -2 V_d: the bridge's own body diodes (Q2 then Q1) clamp the bus there
     clamp = -2.0 * np.asarray(release_loop(res).diode(drive), float)
     high = np.asarray(lp.v_on, float)
-    if lp.mixed is not None:   # (a supply that sinks: config)
+    if lp.mixed is not None and s.sink:
         # every fast part of the hold returns current: the bus may sit above the source
+        # (one that cannot sink: the starts stay at or below it, see no_sink_top)
         period = np.asarray(res.hold.period, float)
         high = high + bus_decay.mixed_hold_rise(s.source_resistance, s.capacitance, top,
                                                 lp.mixed.fraction * period, period)
     return np.maximum(np.minimum(v_peak, floor), clamp), high
+
+
+def no_sink_top(drive: Drive, res, peak_end) -> np.ndarray | None:
+    """A mixed-decay hold on a drooping bus that cannot sink: the highest bus (V) over the
+    hold and every turn-off after it, per point --
+    :func:`coildrive.model.bus_decay.no_sink_energy_top` with the coil's energy at most
+    ``1/2 L top^2`` (``top`` A: :func:`_top`, the most it carries after the peak) when the
+    bus crosses up through the source. ``None`` otherwise. (The fast decays from starting
+    buses at or below the source give the release's times and charges: a bus above it
+    decays faster, with less charge.)"""
+    lp = res.loop
+    if not drooped(drive) or drive.supply.sink or lp.mixed is None:
+        return None
+    top = _top(drive, res, peak_end)
+    return bus_decay.no_sink_energy_top(lp.v_on, drive.supply.capacitance,
+                                        0.5 * np.asarray(lp.inductance, float) * top ** 2)
 
 
 def drooped(drive: Drive) -> bool:
@@ -152,8 +169,10 @@ def bridge_release(drive: Drive, grid, res, release: ReleaseResult, peak_time, p
     design's release on the source voltage is not the safe side), the higher switch
     voltage (the bus rises above the source) and the larger body-diode energy
     (``2 V_d int i dt``, more charge on a slower decay); the dict holds the highest bus for
-    :class:`~coildrive.design.result.SupplyResult`. Without a source resistance or a
-    bridge, unchanged and ``{}``."""
+    :class:`~coildrive.design.result.SupplyResult`. A mixed-decay hold on a supply that
+    cannot sink: a turn-off from the hold (its end, a trip) sees the bus at most
+    :func:`no_sink_top` too. Without a source resistance or a bridge, unchanged and
+    ``{}``."""
     if not drooped(drive):
         return release, {}
     v_d = release_loop(res).diode(drive)
@@ -161,10 +180,13 @@ def bridge_release(drive: Drive, grid, res, release: ReleaseResult, peak_time, p
     offs = [dict(o) for o in release.turn_offs]
     bus_top, ev_top, k_top = -np.inf, "", 0
     t_drop = t_zero = None
+    hold_top = no_sink_top(drive, res, peak_end)   # (a mixed-decay hold, no sink: a bound)
     for event, i0 in event_currents(res, peak_end, trip_current).items():
         runs = (decays(drive, res, i0, peak_time, peak_end) if res.armature is None
                 else _armature_decays(drive, res, event, i0, peak_time, peak_end))
         bus = np.max([d.bus_max for d in runs], axis=0)
+        if hold_top is not None and event != "end of peak":   # a turn-off from the hold
+            bus = np.maximum(bus, hold_top)
         diodes = 2.0 * v_d * np.max([d.charge for d in runs], axis=0)   # the two body diodes
         v_sw = bus + v_d + (drive.board.sense.resistance * i0 if common else 0.0)
         k = worst(v_sw)
