@@ -1424,8 +1424,9 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     loop; every turn-off's fast decay into the bus is :mod:`coildrive.model.bus_decay`,
     with a curve :mod:`coildrive.model.flux_bus_decay`, on a supply that cannot sink with
     the feed blocking, with an eddy term too: :mod:`coildrive.design.bridge_bus`; its
-    mixed-decay hold, whose every off-time returns current into the bus, with a plain
-    linear coil and no armature: on a supply that sinks the bus's rise bounded by
+    mixed-decay hold, whose every off-time returns current into the bus, with a linear
+    coil or a flux-linkage curve, either with an eddy term, and no armature: on a supply
+    that sinks the bus's rise bounded by
     :func:`coildrive.model.bus_decay.mixed_hold_rise`, on one that cannot by the coil's top
     energy, :func:`coildrive.model.bus_decay.no_sink_energy_top`). A latching coil
     on one switch, with a moving armature too (the set pulse's seat run carries the
@@ -1447,18 +1448,16 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     if not supply.droops:
         return
     why = None
-    if switch.topology == "full_bridge" and hold.fast_fraction > 0 and (
-            coil.flux_current or coil.eddy_resistance or armature is not None):
-        key, why = "hold.fast_fraction", ("a full bridge's mixed-decay hold with a flux-linkage curve, an "
-                                          "eddy-current term or an [armature]")
+    if switch.topology == "full_bridge" and hold.fast_fraction > 0 and armature is not None:
+        key, why = "hold.fast_fraction", "a full bridge's mixed-decay hold with an [armature]"
     elif switch.topology == "full_bridge" and hold.mode == "latch" and (coil.flux_current or coil.eddy_resistance):
         key, why = "hold.mode", ("a latching coil on a full bridge with a flux-linkage curve or an eddy-current "
                                  "term (the fast decay into the bus: a linear coil only)")
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
                          f"{why}: expected source_resistance left out, or one switch (a full bridge: "
-                         "a slow-decay peak-and-hold or a linear coil's mixed decay "
-                         "without an [armature]; a latching coil: a linear coil on a full bridge)")
+                         "a slow-decay peak-and-hold or a mixed decay without an [armature]; "
+                         "a latching coil: a linear coil on a full bridge)")
 
 
 def _read_boost(s: "_Section") -> tuple:

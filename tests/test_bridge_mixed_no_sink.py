@@ -106,19 +106,6 @@ def test_design_with_a_mixed_decay_hold_on_a_bus_that_cannot_sink(tmp_path):
     assert {c["name"] for c in d["checks"]} >= {"bus_pump_up", "capacitor_voltage", "supply_droop"}
 
 
-@pytest.mark.parametrize("coil", ["curve", "eddy"])
-def test_mixed_decay_on_a_bus_that_cannot_sink_with_a_curve_or_eddy_term_refused(tmp_path, coil):
-    path = _mixed(tmp_path, sink="false")
-    text = path.read_text()
-    add = ('eddy_resistance = "400 ohm"\n' if coil == "eddy" else
-           'flux_current = ["0 A", "0.3 A", "0.6 A", "1.2 A"]\n'
-           'flux_linkage = ["0 Wb", "0.021 Wb", "0.036 Wb", "0.05 Wb"]\n')
-    path.write_text(text.replace('inductance = "70 mH"\n', add if coil == "curve" else 'inductance = "70 mH"\n' + add))
-    out = run_cli("design", str(path))
-    assert out.returncode == 2 and "hold.fast_fraction" in out.stderr, out.stderr
-    assert len(out.stderr.strip().splitlines()) == 1
-
-
 def test_a_passing_drive_simulates_and_runs_in_the_virtual_device(tmp_path):
     """Plumbing (the emulator shares the design's physics): behind 2 mohm the design
     passes with the bound under the capacitor's 50 V; simulate writes the four switches'

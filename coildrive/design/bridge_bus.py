@@ -18,7 +18,7 @@ import numpy as np
 from ..config import Drive
 from ..model import bus_decay, flux_bus_decay
 from ..model.circuit import full_bridge
-from ..model.eddy import EddyCoil
+from ..model.eddy import EddyCoil, stored_energy
 from ..model.eddy import terminal as eddy_terminal
 from ..model.flux import FluxCoil
 from ..model.supply import bus_floor
@@ -32,17 +32,33 @@ from .turnoff import event_currents, release_loop
 BRIDGE_STARTS = bus_decay.STARTS
 
 
+def _coil_top(res, peak_end) -> np.ndarray:
+    """The coil's (with an eddy term: the magnetising) current's top (A) after the peak at
+    the points of ``res``: the larger of the end of the peak ``peak_end`` A (a boosted
+    peak's hand-over) and the hold's top."""
+    end = np.broadcast_to(np.asarray(peak_end, float), res.loop.v_on.shape)
+    return np.maximum(np.where(np.isfinite(end), end, 0.0),
+                      np.where(np.isfinite(res.hold.i_max), res.hold.i_max, 0.0))
+
+
 def _top(drive: Drive, res, peak_end) -> np.ndarray:
     """The most current (A) the coil draws off the bus after the peak at the points of
-    ``res``: the larger of the end of the peak ``peak_end`` A (a boosted peak's hand-over)
-    and the hold's top (with an eddy term the terminal current they bound)."""
+    ``res``: :func:`_coil_top` (with an eddy term the terminal current it bounds)."""
     lp = res.loop
-    end = np.broadcast_to(np.asarray(peak_end, float), lp.v_on.shape)
-    top = np.maximum(np.where(np.isfinite(end), end, 0.0),
-                     np.where(np.isfinite(res.hold.i_max), res.hold.i_max, 0.0))
+    top = _coil_top(res, peak_end)
     if isinstance(lp.inductance, EddyCoil):
         # the bus feeds the terminal current: at most (V_s + R_e i_m)/(R + R_e) (v <= V_s)
         top = eddy_terminal(top, lp.v_on, lp.r_on, lp.inductance.resistance)
+    return top
+
+
+def _returned_top(drive: Drive, res, peak_end) -> np.ndarray:
+    """The most current (A) a fast part of the hold returns into the bus: :func:`_top`,
+    and with an eddy term at least the magnetising current's top (in a fast part the
+    branch's voltage is reversed, so the terminal current is below the magnetising one)."""
+    top = _top(drive, res, peak_end)
+    if isinstance(res.loop.inductance, EddyCoil):
+        top = np.maximum(top, _coil_top(res, peak_end))
     return top
 
 
@@ -68,7 +84,8 @@ def bus_range(drive: Drive, res, peak_time, peak_end) -> tuple[np.ndarray, np.nd
     :func:`coildrive.design.supply.handover_bus`. A mixed-decay hold (on a supply that
     sinks) returns current into the bus in every off-time's fast part, so the bus may sit
     above the source by up to :func:`coildrive.model.bus_decay.mixed_hold_rise` (the
-    coil's current at most :func:`_top`): the highest starting bus."""
+    current returned at most :func:`_returned_top`): the highest starting bus (on a supply
+    that cannot sink the starts stop at the source: :func:`no_sink_top`)."""
     s = drive.supply
     lp = res.loop
     top = _top(drive, res, peak_end)
@@ -88,7 +105,8 @@ def bus_range(drive: Drive, res, peak_time, peak_end) -> tuple[np.ndarray, np.nd
         # every fast part of the hold returns current: the bus may sit above the source
         # (one that cannot sink: the starts stay at or below it, see no_sink_top)
         period = np.asarray(res.hold.period, float)
-        high = high + bus_decay.mixed_hold_rise(s.source_resistance, s.capacitance, top,
+        high = high + bus_decay.mixed_hold_rise(s.source_resistance, s.capacitance,
+                                                _returned_top(drive, res, peak_end),
                                                 lp.mixed.fraction * period, period)
     return np.maximum(np.minimum(v_peak, floor), clamp), high
 
@@ -97,16 +115,18 @@ def no_sink_top(drive: Drive, res, peak_end) -> np.ndarray | None:
     """A mixed-decay hold on a drooping bus that cannot sink: the highest bus (V) over the
     hold and every turn-off after it, per point --
     :func:`coildrive.model.bus_decay.no_sink_energy_top` with the coil's energy at most
-    ``1/2 L top^2`` (``top`` A: :func:`_top`, the most it carries after the peak) when the
-    bus crosses up through the source. ``None`` otherwise. (The fast decays from starting
+    its stored energy at :func:`_coil_top` (``1/2 L top^2``, a curve's ``int i dpsi``; with
+    an eddy term the magnetising branch's, the eddy resistance stores none) when the bus
+    crosses up through the source. ``None`` otherwise. (The fast decays from starting
     buses at or below the source give the release's times and charges: a bus above it
     decays faster, with less charge.)"""
     lp = res.loop
     if not drooped(drive) or drive.supply.sink or lp.mixed is None:
         return None
-    top = _top(drive, res, peak_end)
+    coil = lp.inductance
+    mag = coil.magnetising if isinstance(coil, EddyCoil) else coil
     return bus_decay.no_sink_energy_top(lp.v_on, drive.supply.capacitance,
-                                        0.5 * np.asarray(lp.inductance, float) * top ** 2)
+                                        stored_energy(mag, _coil_top(res, peak_end)))
 
 
 def drooped(drive: Drive) -> bool:
