@@ -1491,8 +1491,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     diode/zener/resistor freewheel (split decay too) or a clamp across a low-side or a
     high-side switch, a stiff or a drooping main supply (the main bus feeds the hold from
     the hand-over: :func:`coildrive.design.supply.handover_bus`, a linear coil, a curve or
-    an eddy term; on a full bridge, a linear coil, every turn-off's fast decay returns
-    into it, the boost converter idle or drawing: :mod:`coildrive.design.bridge_bus`), a PWM
+    an eddy term; on a full bridge every turn-off's fast decay returns into it, the boost
+    converter idle or drawing: :mod:`coildrive.design.bridge_bus`, a linear coil, or a
+    curve or an eddy term on a supply that sinks), a PWM
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
     mode), a peak that ends at its threshold. A moving armature
     (:mod:`coildrive.model.armature_boost`): a linear coil (an eddy term too), a
@@ -1512,10 +1513,12 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "converter draws boost_power / its efficiency from the main bus, expected it "
                          "(e.g. 0.85)")
     why = None
-    if supply.droops and switch.topology == "full_bridge" and (coil.flux_current or coil.eddy_resistance):
-        key, why = "supply.source_resistance", ("a drooping main supply on a full bridge with a flux-linkage "
-                                                "curve or an eddy-current term (the release into the drooping "
-                                                "bus with the converter drawing is a linear coil's)")
+    if (supply.droops and switch.topology == "full_bridge" and not supply.sink
+            and (coil.flux_current or coil.eddy_resistance)):
+        key, why = "supply.sink", ("a drooping main supply that cannot sink on a full bridge with a "
+                                   "flux-linkage curve or an eddy-current term (the release into the "
+                                   "drooping bus with the converter drawing and the feed blocking is a "
+                                   "linear coil's)")
     elif hold.mode == "latch":
         key, why = "hold.mode", ("a latching coil (set and reset pulses from the boost would each end at a "
                                  "current threshold of their own, with the boost switch in the latch "
@@ -1543,7 +1546,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "high-side switch or a "
                          "full bridge, a "
                          "diode/zener/resistor freewheel (split decay too) or a clamp, a stiff "
-                         "main supply (or a drooping one: no [armature]; on a full bridge a linear coil), a "
+                         "main supply (or a drooping one: no [armature]; on a full bridge a linear coil, or "
+                         "a curve or an eddy term on a supply that sinks), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
                          "with [armature]: no restitution, no mixed decay, no [duty] with an eddy term")
 

@@ -118,17 +118,17 @@ def test_curve_fast_decay_into_the_bus_against_solve_ivp(sink):
         assert got == pytest.approx([t_zero, t_drop, v_top, q], rel=1e-5), (k, got)
 
 
-def curve_reference(i0, v0, r_s, c, r, sink=True, rtol=1e-11):
+def curve_reference(i0, v0, r_s, c, r, sink=True, rtol=1e-11, i_c=0.0, coil=COIL):
     """scipy's solve_ivp (Radau) of the curve's fast decay into the bus, written afresh:
-    ``L_d(i) di/dt = -(R i + v + 2 V_d)``, ``C dv/dt = i + feed`` (the feed ``(V_s -
-    v)/R_s``, never below 0 when it cannot sink), ``q' = i``, to the current's zero:
-    ``(zero s, drop-out s, highest bus V, bus at zero V, charge C)``."""
+    ``L_d(i) di/dt = -(R i + v + 2 V_d)``, ``C dv/dt = i + feed - i_c`` (the feed ``(V_s -
+    v)/R_s``, never below 0 when it cannot sink; ``i_c`` A drawn off the bus), ``q' = i``,
+    to the current's zero: ``(zero s, drop-out s, highest bus V, bus at zero V, charge C)``."""
     from scipy.integrate import solve_ivp
 
     def f(t, x):
         feed = (V_SUP - x[1]) / r_s
-        ld = float(COIL.curve.incremental(x[0]))
-        return [-(r * x[0] + x[1] + 2 * V_D) / ld, (x[0] + (feed if sink else max(feed, 0.0))) / c, x[0]]
+        ld = float(coil.curve.incremental(x[0]))
+        return [-(r * x[0] + x[1] + 2 * V_D) / ld, (x[0] + (feed if sink else max(feed, 0.0)) - i_c) / c, x[0]]
 
     def zero(t, x):
         return x[0]
@@ -139,7 +139,7 @@ def curve_reference(i0, v0, r_s, c, r, sink=True, rtol=1e-11):
     s = solve_ivp(f, [0, 1], [i0, v0, 0.0], method="Radau", events=[zero, drop], rtol=rtol, atol=rtol * 1e-2,
                   dense_output=True)
     t_zero, (_, v_z, q) = s.t_events[0][0], s.y_events[0][0]
-    v_top = max(float(np.max(s.sol(np.linspace(0, t_zero, 20001))[1])), V_SUP)
+    v_top = max(float(np.max(s.sol(np.linspace(0, t_zero, 20001))[1])), V_SUP - r_s * i_c)
     return t_zero, s.t_events[1][0], v_top, v_z, q
 
 

@@ -140,7 +140,11 @@ def decays(drive: Drive, res, i0, peak_time, peak_end) -> list[bus_decay.FastDec
     sink: :func:`coildrive.model.bus_decay.decay_no_sink`; a flux-linkage curve:
     :mod:`coildrive.model.flux_bus_decay`, stepped; an eddy term:
     :func:`coildrive.model.bus_decay.eddy_decay` (``eddy_decay_no_sink``), or with a curve
-    the stepped ones, the currents the magnetising ones)."""
+    the stepped ones, the currents the magnetising ones). After a boosted peak the
+    converter may be idle or drawing its most (:func:`converter_draw`, ``I_c``): a linear
+    coil's :func:`coildrive.model.bus_decay.decay_drawn`; a curve's or an eddy term's on a
+    supply that sinks the same decays with the source ``V_s - R_s I_c`` (Thevenin: ``C
+    dv/dt = i + (V_s - v)/R_s - I_c = i + (V_s - R_s I_c - v)/R_s``, exact)."""
     s = drive.supply
     lp = release_loop(res)
     lo, hi = bus_range(drive, res, peak_time, peak_end)
@@ -148,20 +152,27 @@ def decays(drive: Drive, res, i0, peak_time, peak_end) -> list[bus_decay.FastDec
     coil, eddy = lp.inductance, {}
     if isinstance(coil, EddyCoil):
         coil, eddy = coil.magnetising, {"r_e": coil.resistance}
+    i_conv = converter_draw(drive, res, peak_end)
+    # the sources the decays run against: the idle converter's, and the drawing one's
+    # (a curve or an eddy term: a supply that sinks, config)
+    sources = [lp.v_on] + ([] if i_conv is None or not (eddy or isinstance(coil, FluxCoil))
+                           else [lp.v_on - s.source_resistance * i_conv])
     if isinstance(coil, FluxCoil):   # stepped: every start in one run
         fast = flux_bus_decay.decay if s.sink else flux_bus_decay.decay_no_sink
-        d = fast(i0, np.stack(np.broadcast_arrays(*starts)), drive.release.current, lp.v_on, s.source_resistance,
-                 s.capacitance, lp.r_off, coil, lp.diode(drive), **eddy)
-        return [bus_decay.FastDecay(*(getattr(d, f.name)[k] for f in dataclasses.fields(d)))
-                for k in range(BRIDGE_STARTS)]
+        runs = []
+        for v_s in sources:
+            d = fast(i0, np.stack(np.broadcast_arrays(*starts)), drive.release.current, v_s,
+                     s.source_resistance, s.capacitance, lp.r_off, coil, lp.diode(drive), **eddy)
+            runs += [bus_decay.FastDecay(*(getattr(d, f.name)[k] for f in dataclasses.fields(d)))
+                     for k in range(BRIDGE_STARTS)]
+        return runs
     if eddy:
         fast = bus_decay.eddy_decay if s.sink else bus_decay.eddy_decay_no_sink
     else:
         fast = bus_decay.decay if s.sink else bus_decay.decay_no_sink
-    runs = [fast(i0, v0, drive.release.current, lp.v_on, s.source_resistance,
-                 s.capacitance, lp.r_off, coil, lp.diode(drive), *eddy.values()) for v0 in starts]
-    i_conv = converter_draw(drive, res, peak_end)
-    if i_conv is not None:   # (a plain linear coil: config refuses the rest after a boost)
+    runs = [fast(i0, v0, drive.release.current, v_s, s.source_resistance,
+                 s.capacitance, lp.r_off, coil, lp.diode(drive), *eddy.values()) for v_s in sources for v0 in starts]
+    if i_conv is not None and not eddy:
         # the converter may be idle at the turn-off (recharged) or drawing its most: the
         # state is affine in its current too, so both ends from every starting bus
         runs += [bus_decay.decay_drawn(i0, v0, drive.release.current, lp.v_on, i_conv, s.source_resistance,
