@@ -112,16 +112,18 @@ def bus_range(drive: Drive, res, peak_time, peak_end) -> tuple[np.ndarray, np.nd
 
 
 def no_sink_top(drive: Drive, res, peak_end) -> np.ndarray | None:
-    """A mixed-decay hold on a drooping bus that cannot sink: the highest bus (V) over the
-    hold and every turn-off after it, per point --
+    """A full bridge's mixed-decay hold on a supply that cannot sink (drooping or stiff:
+    the argument needs only the feed diode): the highest bus (V) over the hold and every
+    turn-off after it, per point --
     :func:`coildrive.model.bus_decay.no_sink_energy_top` with the coil's energy at most
     its stored energy at :func:`_coil_top` (``1/2 L top^2``, a curve's ``int i dpsi``; with
     an eddy term the magnetising branch's, the eddy resistance stores none) when the bus
-    crosses up through the source. ``None`` otherwise. (The fast decays from starting
+    crosses up through the source. ``None`` otherwise (with a moving armature too: its
+    spring's energy may feed the circuit). (The fast decays from starting
     buses at or below the source give the release's times and charges: a bus above it
     decays faster, with less charge.)"""
     lp = res.loop
-    if not drooped(drive) or drive.supply.sink or lp.mixed is None:
+    if not full_bridge(drive) or drive.supply.sink or lp.mixed is None or res.armature is not None:
         return None
     coil = lp.inductance
     mag = coil.magnetising if isinstance(coil, EddyCoil) else coil
