@@ -1424,9 +1424,11 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     loop; every turn-off's fast decay into the bus is :mod:`coildrive.model.bus_decay`,
     with a curve :mod:`coildrive.model.flux_bus_decay`, on a supply that cannot sink with
     the feed blocking, with an eddy term too: :mod:`coildrive.design.bridge_bus`; its
-    mixed-decay hold, whose every off-time returns current into the bus, on a supply that
-    sinks with a plain linear coil and no armature, the bus's rise bounded by
-    :func:`coildrive.model.bus_decay.mixed_hold_rise`). A latching coil
+    mixed-decay hold, whose every off-time returns current into the bus, with a linear
+    coil or a flux-linkage curve, either with an eddy term, and no armature: on a supply
+    that sinks the bus's rise bounded by
+    :func:`coildrive.model.bus_decay.mixed_hold_rise`, on one that cannot by the coil's top
+    energy, :func:`coildrive.model.bus_decay.no_sink_energy_top`). A latching coil
     on one switch, with a moving armature too (the set pulse's seat run carries the
     capacitor, linear or on its two curves, an eddy term too:
     :func:`coildrive.design.latch.seat_run`), or on a full bridge with a linear coil or an
@@ -1447,12 +1449,8 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     if not supply.droops:
         return
     why = None
-    if switch.topology == "full_bridge" and hold.fast_fraction > 0 and (
-            not supply.sink or coil.flux_current or coil.eddy_resistance or armature is not None):
-        key, why = "hold.fast_fraction", ("a full bridge's mixed-decay hold on a supply that cannot sink "
-                                          "(each off-time's fast part returns current the bus keeps: it "
-                                          "pumps up period after period) or with a flux-linkage curve, an "
-                                          "eddy-current term or an [armature]")
+    if switch.topology == "full_bridge" and hold.fast_fraction > 0 and armature is not None:
+        key, why = "hold.fast_fraction", "a full bridge's mixed-decay hold with an [armature]"
     elif (switch.topology == "full_bridge" and hold.mode == "latch" and not supply.sink
           and coil.flux_current and not coil.eddy_resistance):
         key, why = "supply.sink", ("a latching coil on a full bridge with a flux-linkage curve (no eddy-current "
@@ -1461,9 +1459,8 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     if why is not None:
         raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
                          f"{why}: expected source_resistance left out, or one switch (a full bridge: "
-                         "a slow-decay peak-and-hold or, on a supply that sinks, a linear coil's mixed decay "
-                         "without an [armature]; a latching coil on a full bridge: a linear coil or an eddy "
-                         "term, or on a supply that sinks a curve too)")
+                         "a slow-decay peak-and-hold or a mixed decay without an [armature]; a latching coil "
+                         "on a full bridge: a linear coil or an eddy term, or on a supply that sinks a curve too)")
 
 
 def _read_boost(s: "_Section") -> tuple:
@@ -1523,10 +1520,10 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     diode/zener/resistor freewheel (split decay too) or a clamp across a low-side or a
     high-side switch, a stiff or a drooping main supply (the main bus feeds the hold from
     the hand-over: :func:`coildrive.design.supply.handover_bus`, a linear coil, a curve or
-    an eddy term; on a full bridge, a linear coil, every turn-off's fast decay returns
-    into it, the boost converter idle or drawing: :mod:`coildrive.design.bridge_bus`; with
-    a moving armature, a linear coil on one switch without a clamp, the hold's flight on
-    it), a PWM
+    an eddy term; on a full bridge every turn-off's fast decay returns into it, the boost
+    converter idle or drawing: :mod:`coildrive.design.bridge_bus`, a linear coil, or a
+    curve or an eddy term on a supply that sinks; with a moving armature, a linear coil on
+    one switch without a clamp, the hold's flight on it), a PWM
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
     mode), a peak that ends at its threshold. A moving armature
     (:mod:`coildrive.model.armature_boost`): a linear coil (an eddy term too), a
@@ -1552,10 +1549,12 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "converter draws boost_power / its efficiency from the main bus, expected it "
                          "(e.g. 0.85)")
     why = None
-    if supply.droops and switch.topology == "full_bridge" and (coil.flux_current or coil.eddy_resistance):
-        key, why = "supply.source_resistance", ("a drooping main supply on a full bridge with a flux-linkage "
-                                                "curve or an eddy-current term (the release into the drooping "
-                                                "bus with the converter drawing is a linear coil's)")
+    if (supply.droops and switch.topology == "full_bridge" and not supply.sink
+            and (coil.flux_current or coil.eddy_resistance)):
+        key, why = "supply.sink", ("a drooping main supply that cannot sink on a full bridge with a "
+                                   "flux-linkage curve or an eddy-current term (the release into the "
+                                   "drooping bus with the converter drawing and the feed blocking is a "
+                                   "linear coil's)")
     elif hold.mode == "latch" and _boosted_latch_refusal(coil, switch, supply, armature, latch):
         key, why = _boosted_latch_refusal(coil, switch, supply, armature, latch)
     elif hold.mode == "latch" and freewheel.type == "clamp":
@@ -1589,8 +1588,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "high-side switch or a "
                          "full bridge, a "
                          "diode/zener/resistor freewheel (split decay too) or a clamp, a stiff "
-                         "main supply (or a drooping one; on a full bridge a linear coil; "
-                         "with [armature] a linear coil on one switch, no clamp), a "
+                         "main supply (or a drooping one; on a full bridge a linear coil, or a curve or an "
+                         "eddy term on a supply that sinks; with [armature] a linear coil on one switch, no "
+                         "clamp), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
                          "with [armature]: no mixed decay, no restitution or [duty] with an eddy term; a "
                          "latching coil: a linear coil and its reset winding, a stiff main supply, no [armature]")

@@ -142,18 +142,19 @@ def test_design_takes_the_hand_over(tmp_path):
 
 @pytest.mark.parametrize("name,change,board,word", [
     # (an eddy term or a curve on one switch: tests/test_boost_droop_coils.py; a linear coil
-    # on a full bridge: tests/test_boost_bridge_droop.py)
+    # on a full bridge: tests/test_boost_bridge_droop.py; a curve or an eddy term on a full
+    # bridge on a supply that sinks: tests/test_boost_bridge_droop_coils.py)
     ("bridge-eddy", ('inductance = "6 mH"', 'inductance = "6 mH"\neddy_resistance = "200 ohm"'), "bridge-m32-fast",
      "full bridge"),
 ])
 def test_still_refused(tmp_path, name, change, board, word):
-    """A drooping main supply with a boost on a full bridge with an eddy term is refused in
-    one line naming ``supply.source_resistance``."""
+    """A drooping main supply that cannot sink with a boost on a full bridge with an eddy
+    term is refused in one line naming ``supply.sink``."""
     path = _droop(tmp_path, name, change)
     if board:
-        path.write_text(path.read_text().replace("lab-m32-zener", board))
+        path.write_text(path.read_text().replace("lab-m32-zener", board).replace("[supply]\n", "[supply]\nsink = false\n", 1))
     out = run_cli("design", str(path))
-    assert out.returncode == 2 and "supply.source_resistance" in out.stderr and word in out.stderr, out.stderr
+    assert out.returncode == 2 and "supply.sink" in out.stderr and word in out.stderr, out.stderr
     assert len(out.stderr.strip().splitlines()) == 1
 
 

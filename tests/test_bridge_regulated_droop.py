@@ -133,27 +133,22 @@ def test_release_and_buses_match_solve_ivp(tmp_path, hold, sink):
     assert not names["supply_droop"]["ok"] and f"{sup['lowest_bus_v']:.4g} V" in names["supply_droop"]["detail"]
 
 
-@pytest.mark.parametrize("what", ["mixed", "latch"])
-def test_what_a_bridge_on_the_drooping_bus_still_refuses_is_one_line(tmp_path, what):
-    # mixed decay on a supply that cannot sink (every off-time's fast part returns current
-    # the bus keeps; on one that sinks: tests/test_bridge_mixed_droop.py) and a latching
-    # coil's pulses on a bridge with a flux-linkage curve (a linear one is designed:
-    # tests/test_latch_bridge_droop.py): not modelled on the drooping bus, each one line, exit 2
+def test_what_a_bridge_on_the_drooping_bus_still_refuses_is_one_line(tmp_path):
+    # a latching coil's pulses on a bridge with a flux-linkage curve (a linear one is
+    # designed: tests/test_latch_bridge_droop.py; a mixed-decay hold on a supply that sinks
+    # or not, with a curve or an eddy term too: tests/test_bridge_mixed_droop.py,
+    # test_bridge_mixed_no_sink.py, test_bridge_mixed_droop_coils.py): not modelled on the
+    # drooping bus, one line, exit 2
     from conftest import EXAMPLES
     from test_latch_flux import _table
 
-    if what == "mixed":
-        path = bridge_variant(tmp_path, ('frequency = "20 kHz"\n', 'frequency = "20 kHz"\nfast_fraction = 0.3\n'),
-                              DROOP)
-        key = "hold.fast_fraction"
-    else:
-        text = (EXAMPLES / "latching" / "irrigation-valve-bridge-12v.toml").read_text()
-        old = "sink = true                  # the battery takes the returned energy back\n"
-        assert old in text
-        path = tmp_path / "latch.toml"
-        path.write_text(text.replace(old, old + 'source_resistance = "0.3 ohm"\ncapacitance = "1000 uF"\n')
-                        .replace('inductance = "15 mH"\n', _table()))
-        key = "hold.mode"
+    text = (EXAMPLES / "latching" / "irrigation-valve-bridge-12v.toml").read_text()
+    old = "sink = true                  # the battery takes the returned energy back\n"
+    assert old in text
+    path = tmp_path / "latch.toml"
+    path.write_text(text.replace(old, old + 'source_resistance = "0.3 ohm"\ncapacitance = "1000 uF"\n')
+                    .replace('inductance = "15 mH"\n', _table()))
+    key = "hold.mode"
     r = run_cli("design", str(path))
     lines = r.stderr.strip().splitlines()
     assert r.returncode == 2 and len(lines) == 1, r.stderr

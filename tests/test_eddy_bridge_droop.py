@@ -57,8 +57,9 @@ def test_peak_and_release_match_ngspice(tmp_path, kind, sink):
     assert float(d.drop_time) > float(d.zero_time), "precondition: the drop-out in the flux's tail"
 
 
-def _reference(coil, i0, v0, i_drop, r_s, c, r, r_e, sink=True):
-    """scipy's solve_ivp: ``(zero s, drop-out s, highest bus V, bus at zero V, charge C)``."""
+def _reference(coil, i0, v0, i_drop, r_s, c, r, r_e, sink=True, i_c=0.0):
+    """scipy's solve_ivp (``i_c`` A drawn off the bus throughout): ``(zero s, drop-out s,
+    highest bus V, bus at zero V, charge C)``."""
     from scipy.integrate import solve_ivp
 
     def ld(i):
@@ -70,7 +71,7 @@ def _reference(coil, i0, v0, i_drop, r_s, c, r, r_e, sink=True):
     def f(t, x):       # x = (magnetising A, bus V, charge C)
         i = terminal(x)
         feed = (V_SUP - x[1]) / r_s
-        return [r_e * (i - x[0]) / ld(x[0]), (i + (feed if sink else max(feed, 0.0))) / c, i]
+        return [r_e * (i - x[0]) / ld(x[0]), (i + (feed if sink else max(feed, 0.0)) - i_c) / c, i]
 
     def zero(t, x):
         return terminal(x)
@@ -92,7 +93,7 @@ def _reference(coil, i0, v0, i_drop, r_s, c, r, r_e, sink=True):
         down.terminal = True
         t_drop = t_zero + solve_ivp(tail, [0, 1], [i_z], method="Radau", events=down, rtol=1e-11,
                                     atol=1e-13).t_events[0][0]
-    v_top = max(float(np.max(s.sol(np.linspace(0, t_zero, 20001))[1])), V_SUP)
+    v_top = max(float(np.max(s.sol(np.linspace(0, t_zero, 20001))[1])), V_SUP - r_s * i_c)
     return t_zero, t_drop, v_top, v_z, q
 
 

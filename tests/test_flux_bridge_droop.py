@@ -101,7 +101,6 @@ def test_curve_bridge_peak_and_release_on_the_drooping_bus_match_ngspice(tmp_pat
 
 @pytest.mark.parametrize("sink", [True, False], ids=["sink", "no-sink"])
 def test_curve_fast_decay_into_the_bus_against_solve_ivp(sink):
-    from scipy.integrate import solve_ivp
     r = R_COIL + R_SENSE
     # (i0 A, v0 V, R_s ohm, C F): a cable and a small capacitor; a battery lead and a large
     # one (the bus rings); a stiff source (R_s C = 2.35 us, far below the decay's ms)
@@ -112,25 +111,36 @@ def test_curve_fast_decay_into_the_bus_against_solve_ivp(sink):
     one = (flux_bus_decay.decay if sink else flux_bus_decay.decay_no_sink)(
         cases[2][0], cases[2][1], I_DROP, V_SUP, cases[2][2], cases[2][3], r, COIL, V_D)
     for k, (i0, v0, r_s, c) in enumerate(cases):
-        def f(t, x, r_s=r_s, c=c):   # L_d(i) di/dt = -(R i + v + 2 V_d); C dv/dt = i + feed; q' = i
-            feed = (V_SUP - x[1]) / r_s
-            ld = float(COIL.curve.incremental(x[0]))
-            return [-(r * x[0] + x[1] + 2 * V_D) / ld, (x[0] + (feed if sink else max(feed, 0.0))) / c, x[0]]
-
-        def zero(t, x):
-            return x[0]
-        zero.terminal, zero.direction = True, -1
-
-        def drop(t, x):
-            return x[0] - I_DROP
-        s = solve_ivp(f, [0, 1], [i0, v0, 0.0], method="Radau", events=[zero, drop], rtol=1e-10, atol=1e-12,
-                      dense_output=True)
-        t_zero, t_drop = s.t_events[0][0], s.t_events[1][0]
-        v_top = max(float(np.max(s.sol(np.linspace(0, t_zero, 20001))[1])), V_SUP)
+        t_zero, t_drop, v_top, _, q = curve_reference(i0, v0, r_s, c, r, sink, rtol=1e-10)
         got = [float(np.ravel(x)[k]) for x in (d.zero_time, d.drop_time, d.bus_max, d.charge)] if k < 2 else \
             [float(x) for x in (one.zero_time, one.drop_time, one.bus_max, one.charge)]
         # scipy solve_ivp (Radau, rtol 1e-10): the times, the highest bus and the charge to 1e-5
-        assert got == pytest.approx([t_zero, t_drop, v_top, s.y_events[0][0][2]], rel=1e-5), (k, got)
+        assert got == pytest.approx([t_zero, t_drop, v_top, q], rel=1e-5), (k, got)
+
+
+def curve_reference(i0, v0, r_s, c, r, sink=True, rtol=1e-11, i_c=0.0, coil=COIL):
+    """scipy's solve_ivp (Radau) of the curve's fast decay into the bus, written afresh:
+    ``L_d(i) di/dt = -(R i + v + 2 V_d)``, ``C dv/dt = i + feed - i_c`` (the feed ``(V_s -
+    v)/R_s``, never below 0 when it cannot sink; ``i_c`` A drawn off the bus), ``q' = i``,
+    to the current's zero: ``(zero s, drop-out s, highest bus V, bus at zero V, charge C)``."""
+    from scipy.integrate import solve_ivp
+
+    def f(t, x):
+        feed = (V_SUP - x[1]) / r_s
+        ld = float(coil.curve.incremental(x[0]))
+        return [-(r * x[0] + x[1] + 2 * V_D) / ld, (x[0] + (feed if sink else max(feed, 0.0)) - i_c) / c, x[0]]
+
+    def zero(t, x):
+        return x[0]
+    zero.terminal, zero.direction = True, -1
+
+    def drop(t, x):
+        return x[0] - I_DROP
+    s = solve_ivp(f, [0, 1], [i0, v0, 0.0], method="Radau", events=[zero, drop], rtol=rtol, atol=rtol * 1e-2,
+                  dense_output=True)
+    t_zero, (_, v_z, q) = s.t_events[0][0], s.y_events[0][0]
+    v_top = max(float(np.max(s.sol(np.linspace(0, t_zero, 20001))[1])), V_SUP - r_s * i_c)
+    return t_zero, s.t_events[1][0], v_top, v_z, q
 
 
 def test_curve_bridge_design_on_the_drooping_bus(tmp_path):

@@ -18,8 +18,9 @@ import numpy as np
 from ..config import Drive
 from ..model import bus_decay, flux_bus_decay
 from ..model.circuit import full_bridge
-from ..model.eddy import EddyCoil
+from ..model.eddy import EddyCoil, stored_energy
 from ..model.eddy import terminal as eddy_terminal
+from ..model.flux import FluxCoil
 from ..model.supply import bus_floor
 from .figures import worst
 from .result import Check, ReleaseResult, SupplyResult
@@ -31,17 +32,33 @@ from .turnoff import event_currents, release_loop
 BRIDGE_STARTS = bus_decay.STARTS
 
 
+def _coil_top(res, peak_end) -> np.ndarray:
+    """The coil's (with an eddy term: the magnetising) current's top (A) after the peak at
+    the points of ``res``: the larger of the end of the peak ``peak_end`` A (a boosted
+    peak's hand-over) and the hold's top."""
+    end = np.broadcast_to(np.asarray(peak_end, float), res.loop.v_on.shape)
+    return np.maximum(np.where(np.isfinite(end), end, 0.0),
+                      np.where(np.isfinite(res.hold.i_max), res.hold.i_max, 0.0))
+
+
 def _top(drive: Drive, res, peak_end) -> np.ndarray:
     """The most current (A) the coil draws off the bus after the peak at the points of
-    ``res``: the larger of the end of the peak ``peak_end`` A (a boosted peak's hand-over)
-    and the hold's top (with an eddy term the terminal current they bound)."""
+    ``res``: :func:`_coil_top` (with an eddy term the terminal current it bounds)."""
     lp = res.loop
-    end = np.broadcast_to(np.asarray(peak_end, float), lp.v_on.shape)
-    top = np.maximum(np.where(np.isfinite(end), end, 0.0),
-                     np.where(np.isfinite(res.hold.i_max), res.hold.i_max, 0.0))
+    top = _coil_top(res, peak_end)
     if isinstance(lp.inductance, EddyCoil):
         # the bus feeds the terminal current: at most (V_s + R_e i_m)/(R + R_e) (v <= V_s)
         top = eddy_terminal(top, lp.v_on, lp.r_on, lp.inductance.resistance)
+    return top
+
+
+def _returned_top(drive: Drive, res, peak_end) -> np.ndarray:
+    """The most current (A) a fast part of the hold returns into the bus: :func:`_top`,
+    and with an eddy term at least the magnetising current's top (in a fast part the
+    branch's voltage is reversed, so the terminal current is below the magnetising one)."""
+    top = _top(drive, res, peak_end)
+    if isinstance(res.loop.inductance, EddyCoil):
+        top = np.maximum(top, _coil_top(res, peak_end))
     return top
 
 
@@ -67,7 +84,8 @@ def bus_range(drive: Drive, res, peak_time, peak_end) -> tuple[np.ndarray, np.nd
     :func:`coildrive.design.supply.handover_bus`. A mixed-decay hold (on a supply that
     sinks) returns current into the bus in every off-time's fast part, so the bus may sit
     above the source by up to :func:`coildrive.model.bus_decay.mixed_hold_rise` (the
-    coil's current at most :func:`_top`): the highest starting bus."""
+    current returned at most :func:`_returned_top`): the highest starting bus (on a supply
+    that cannot sink the starts stop at the source: :func:`no_sink_top`)."""
     s = drive.supply
     lp = res.loop
     top = _top(drive, res, peak_end)
@@ -83,12 +101,34 @@ def bus_range(drive: Drive, res, peak_time, peak_end) -> tuple[np.ndarray, np.nd
     # never below -2 V_d: the bridge's own body diodes (Q2 then Q1) clamp the bus there
     clamp = -2.0 * np.asarray(release_loop(res).diode(drive), float)
     high = np.asarray(lp.v_on, float)
-    if lp.mixed is not None:   # (a supply that sinks: config)
+    if lp.mixed is not None and s.sink:
         # every fast part of the hold returns current: the bus may sit above the source
+        # (one that cannot sink: the starts stay at or below it, see no_sink_top)
         period = np.asarray(res.hold.period, float)
-        high = high + bus_decay.mixed_hold_rise(s.source_resistance, s.capacitance, top,
+        high = high + bus_decay.mixed_hold_rise(s.source_resistance, s.capacitance,
+                                                _returned_top(drive, res, peak_end),
                                                 lp.mixed.fraction * period, period)
     return np.maximum(np.minimum(v_peak, floor), clamp), high
+
+
+def no_sink_top(drive: Drive, res, peak_end) -> np.ndarray | None:
+    """A full bridge's mixed-decay hold on a supply that cannot sink (drooping or stiff:
+    the argument needs only the feed diode): the highest bus (V) over the hold and every
+    turn-off after it, per point --
+    :func:`coildrive.model.bus_decay.no_sink_energy_top` with the coil's energy at most
+    its stored energy at :func:`_coil_top` (``1/2 L top^2``, a curve's ``int i dpsi``; with
+    an eddy term the magnetising branch's, the eddy resistance stores none) when the bus
+    crosses up through the source. ``None`` otherwise (with a moving armature too: its
+    spring's energy may feed the circuit). (The fast decays from starting
+    buses at or below the source give the release's times and charges: a bus above it
+    decays faster, with less charge.)"""
+    lp = res.loop
+    if not full_bridge(drive) or drive.supply.sink or lp.mixed is None or res.armature is not None:
+        return None
+    coil = lp.inductance
+    mag = coil.magnetising if isinstance(coil, EddyCoil) else coil
+    return bus_decay.no_sink_energy_top(lp.v_on, drive.supply.capacitance,
+                                        stored_energy(mag, _coil_top(res, peak_end)))
 
 
 def drooped(drive: Drive) -> bool:
@@ -102,16 +142,26 @@ def decays(drive: Drive, res, i0, peak_time, peak_end) -> list[bus_decay.FastDec
     sink: :func:`coildrive.model.bus_decay.decay_no_sink`; a flux-linkage curve:
     :mod:`coildrive.model.flux_bus_decay`, stepped; an eddy term:
     :func:`coildrive.model.bus_decay.eddy_decay` (``eddy_decay_no_sink``), or with a curve
-    the stepped ones, the currents the magnetising ones)."""
+    the stepped ones, the currents the magnetising ones). After a boosted peak the
+    converter may be idle or drawing its most (:func:`converter_draw`, ``I_c``): a linear
+    coil's :func:`coildrive.model.bus_decay.decay_drawn`; a curve's or an eddy term's on a
+    supply that sinks the same decays with the source ``V_s - R_s I_c`` (Thevenin: ``C
+    dv/dt = i + (V_s - v)/R_s - I_c = i + (V_s - R_s I_c - v)/R_s``, exact)."""
     s = drive.supply
     lp = release_loop(res)
     lo, hi = bus_range(drive, res, peak_time, peak_end)
     starts = [lo + (hi - lo) * k / (BRIDGE_STARTS - 1) for k in range(BRIDGE_STARTS)]
     coil = lp.inductance
-    runs = flux_bus_decay.fast_decays(coil, i0, starts, drive.release.current, lp.v_on, s.source_resistance,
-                                      s.capacitance, lp.r_off, lp.diode(drive), s.sink)
     i_conv = converter_draw(drive, res, peak_end)
-    if i_conv is not None:   # (a plain linear coil: config refuses the rest after a boost)
+    plain = not isinstance(coil, (EddyCoil, FluxCoil))
+    # the sources the decays run against: the idle converter's, and the drawing one's (a
+    # curve or an eddy term: a supply that sinks, config; a plain linear coil's drawing
+    # converter is decay_drawn's below, the feed's blocking included)
+    sources = [lp.v_on] + ([] if i_conv is None or plain else [lp.v_on - s.source_resistance * i_conv])
+    runs = [run for v_s in sources
+            for run in flux_bus_decay.fast_decays(coil, i0, starts, drive.release.current, v_s, s.source_resistance,
+                                                  s.capacitance, lp.r_off, lp.diode(drive), s.sink)]
+    if i_conv is not None and plain:
         # the converter may be idle at the turn-off (recharged) or drawing its most: the
         # state is affine in its current too, so both ends from every starting bus
         runs += [bus_decay.decay_drawn(i0, v0, drive.release.current, lp.v_on, i_conv, s.source_resistance,
@@ -139,8 +189,10 @@ def bridge_release(drive: Drive, grid, res, release: ReleaseResult, peak_time, p
     design's release on the source voltage is not the safe side), the higher switch
     voltage (the bus rises above the source) and the larger body-diode energy
     (``2 V_d int i dt``, more charge on a slower decay); the dict holds the highest bus for
-    :class:`~coildrive.design.result.SupplyResult`. Without a source resistance or a
-    bridge, unchanged and ``{}``."""
+    :class:`~coildrive.design.result.SupplyResult`. A mixed-decay hold on a supply that
+    cannot sink: a turn-off from the hold (its end, a trip) sees the bus at most
+    :func:`no_sink_top` too. Without a source resistance or a bridge, unchanged and
+    ``{}``."""
     if not drooped(drive):
         return release, {}
     v_d = release_loop(res).diode(drive)
@@ -148,10 +200,13 @@ def bridge_release(drive: Drive, grid, res, release: ReleaseResult, peak_time, p
     offs = [dict(o) for o in release.turn_offs]
     bus_top, ev_top, k_top = -np.inf, "", 0
     t_drop = t_zero = None
+    hold_top = no_sink_top(drive, res, peak_end)   # (a mixed-decay hold, no sink: a bound)
     for event, i0 in event_currents(res, peak_end, trip_current).items():
         runs = (decays(drive, res, i0, peak_time, peak_end) if res.armature is None
                 else _armature_decays(drive, res, event, i0, peak_time, peak_end))
         bus = np.max([d.bus_max for d in runs], axis=0)
+        if hold_top is not None and event != "end of peak":   # a turn-off from the hold
+            bus = np.maximum(bus, hold_top)
         diodes = 2.0 * v_d * np.max([d.charge for d in runs], axis=0)   # the two body diodes
         v_sw = bus + v_d + (drive.board.sense.resistance * i0 if common else 0.0)
         k = worst(v_sw)

@@ -416,7 +416,9 @@ class BridgeResult:
     fast parts return in one PWM period, at ``hold_period_corner``. With ``sink`` false the returned charge
     lands on ``capacitance_f``: the bus rises from the supply to ``pumped_bus_v`` (the
     highest over every turn-off and corner, ``pump_event``, ``pump_corner``; ``pump_up_v``
-    its rise there), and the switches see up to ``pumped_switch_voltage_v``.
+    its rise there; with a mixed-decay hold, no armature, at least the energy bound
+    :func:`coildrive.design.bridge_bus.no_sink_top` at the end of the hold and the trip),
+    and the switches see up to ``pumped_switch_voltage_v``.
     ``switches_on`` names the switches on in each phase (``peak``, ``hold_on``,
     ``hold_decay``, ``release``; :data:`coildrive.model.bridge.PHASES`): what the header
     and the reference driver switch. With a boosted peak (``[supply] boost``) the boost

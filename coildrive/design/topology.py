@@ -22,6 +22,7 @@ from ..model.circuit import full_bridge
 from ..model.rl import decay_integrals, decay_time
 from ..model.topology import topology_of
 from .corners import CornerGrid
+from .bridge_bus import no_sink_top
 from .evaluate import PointResults
 from .figures import worst
 from .result import BridgeResult, Check, ReleaseResult, TopologyResult
@@ -66,7 +67,10 @@ def bridge_result(drive: Drive, grid: CornerGrid, res: PointResults, peak_end,
     that cannot sink it the bus pump-up on the bulk capacitance (series RLC, exact). With
     an ``[armature]`` the release's energy is ``V_bus`` times the armature run's charge
     (:func:`coildrive.model.armature_runs.release` on the fast path) and its pump-up is
-    bounded by that charge on the capacitor."""
+    bounded by that charge on the capacitor. A mixed-decay hold on a supply that cannot
+    sink (stiff or drooping) pumps the bus in its fast parts: the hold and the turn-offs
+    from it take the energy bound :func:`coildrive.design.bridge_bus.no_sink_top` where it
+    is higher."""
     lp = release_loop(res)
     supply = np.asarray(res.supply, float)
     currents = event_currents(res, peak_end, trip_current)
@@ -118,6 +122,14 @@ def bridge_result(drive: Drive, grid: CornerGrid, res: PointResults, peak_end,
             p = pumps["end of hold"]
             v2 = np.maximum(p.v2, supply + returned["end of hold"] / supply / sup.capacitance)
             pumps["end of hold"] = dataclasses.replace(p, v2=v2, delta_v=v2 - supply)
+        hold_top = no_sink_top(drive, res, peak_end)
+        if hold_top is not None:
+            # a mixed-decay hold: its fast parts pump the bus (most in the hold's first
+            # periods); bounded with the turn-offs after it by the coil's top energy
+            for ev in ("end of hold", "over-current trip"):
+                p = pumps[ev]
+                v2 = np.maximum(p.v2, hold_top)
+                pumps[ev] = dataclasses.replace(p, v2=v2, delta_v=v2 - supply)
         event = max(pumps, key=lambda e: float(np.max(pumps[e].v2)))
         k = worst(pumps[event].v2)
         v2 = float(pumps[event].v2[k])

@@ -466,3 +466,24 @@ def mixed_hold_rise(r_s, c, i_top, t_fast, period) -> np.ndarray:
     r_s, c, i_top, t_fast, period = (np.asarray(x, float) for x in (r_s, c, i_top, t_fast, period))
     tau = r_s * c
     return r_s * i_top * np.expm1(-t_fast / tau) / np.expm1(-period / tau)
+
+
+def no_sink_energy_top(v_s, c, w_top) -> np.ndarray:
+    """A bound (V) on the bus of a full bridge behind a supply that cannot sink (a diode in
+    its feed), whatever the bridge switches -- a mixed-decay hold's on-times, fast and slow
+    parts, any number of periods, then a turn-off -- while the coil's stored energy is at
+    most ``w_top`` J whenever the bus crosses up through the source's ``v_s`` V (``c`` F
+    the bulk capacitor).
+
+    While the bus is above the source the feed diode blocks, so nothing brings energy in:
+    the capacitor and the coil only trade it through the switches and body diodes and lose
+    it in the loop's resistance and the diodes, so ``1/2 C v^2 + W`` (``W`` the coil's
+    stored energy, ``1/2 L i^2`` for a linear coil) never rises. From the last moment the
+    bus was at ``v_s`` (with ``W <= w_top``), ``1/2 C v^2 <= 1/2 C v_s^2 + w_top``: ``v <=
+    sqrt(v_s^2 + 2 w_top / C)``. Below the source the bus is below the bound anyway. It
+    is the fast decay's pump-up (:func:`coildrive.model.bridge.pump_up`) from ``v_s`` with
+    the loop's losses left out: those make the real bus lower, so it bounds from above a
+    periodic steady state the fast parts pump up to, the transient into it from the peak
+    and the release from anywhere in it."""
+    v_s, c, w_top = (np.asarray(x, float) for x in (v_s, c, w_top))
+    return np.sqrt(v_s ** 2 + 2.0 * np.maximum(w_top, 0.0) / c)

@@ -384,13 +384,19 @@ def peak_samples(peak_time: float, v: float, r_on: float, ind: float, big: int,
     samples, through the on-loop ``v`` V, ``r_on`` ohm, ``ind`` H -- to the sample pieces
     ``ts``/``cs``/``ons`` (s, A, 0/1); returns the current at its end, A. With a
     ``drive`` whose supply has a source resistance the rise is on the drooping bus
-    (:mod:`coildrive.model.supply`; the hold that follows sees the stiff supply); with a
+    (:mod:`coildrive.model.supply`, a curve's :mod:`coildrive.model.flux_bus`; the hold
+    that follows sees the stiff supply); with a
     boosted peak it runs from the boost at its nominal (:mod:`coildrive.model.boost`)."""
     tp = np.linspace(0.0, peak_time, big + 1)
     ts.append(tp)
     if drive is not None and drive.supply.boosted:
         b = nominal_boost(drive, r_on, ind)
         cs.append(boost_model.of(b).state(tp, b)[0])
+    elif drive is not None and drive.supply.droops and isinstance(ind, FluxCoil):
+        from . import flux_bus   # (a curve's peak on the drooping bus: a full bridge's mixed decay)
+
+        cs.append(flux_bus.current(tp, flux_bus.bus(v, drive.supply.source_resistance,
+                                                    drive.supply.capacitance, r_on, ind)))
     elif drive is not None and drive.supply.droops:
         cs.append(bus_model.current(tp, bus_model.bus(v, drive.supply.source_resistance,
                                                       drive.supply.capacitance, r_on, ind)))
