@@ -134,11 +134,12 @@ def test_release_and_buses_match_solve_ivp(tmp_path, hold, sink):
 
 
 def test_what_a_bridge_on_the_drooping_bus_still_refuses_is_one_line(tmp_path):
-    # a latching coil's pulses on a bridge with a flux-linkage curve (a linear one is
-    # designed: tests/test_latch_bridge_droop.py; a mixed-decay hold on a supply that sinks
-    # or not, with a curve or an eddy term too: tests/test_bridge_mixed_droop.py,
-    # test_bridge_mixed_no_sink.py, test_bridge_mixed_droop_coils.py): not modelled on the
-    # drooping bus, one line, exit 2
+    # a latching coil's pulses on a bridge with a flux-linkage curve and no eddy term on a
+    # supply that cannot sink (a linear one, an eddy term, or a curve on a supply that sinks
+    # is designed: tests/test_latch_bridge_droop.py, test_latch_bridge_droop_curves.py; a
+    # mixed-decay hold on a supply that sinks or not, with a curve or an eddy term too:
+    # tests/test_bridge_mixed_droop.py, test_bridge_mixed_no_sink.py,
+    # test_bridge_mixed_droop_coils.py): not modelled on the drooping bus, one line, exit 2
     from conftest import EXAMPLES
     from test_latch_flux import _table
 
@@ -146,9 +147,9 @@ def test_what_a_bridge_on_the_drooping_bus_still_refuses_is_one_line(tmp_path):
     old = "sink = true                  # the battery takes the returned energy back\n"
     assert old in text
     path = tmp_path / "latch.toml"
-    path.write_text(text.replace(old, old + 'source_resistance = "0.3 ohm"\ncapacitance = "1000 uF"\n')
+    path.write_text(text.replace(old, 'sink = false\nsource_resistance = "0.3 ohm"\ncapacitance = "1000 uF"\n')
                     .replace('inductance = "15 mH"\n', _table()))
-    key = "hold.mode"
+    key = "supply.sink"
     r = run_cli("design", str(path))
     lines = r.stderr.strip().splitlines()
     assert r.returncode == 2 and len(lines) == 1, r.stderr
