@@ -133,6 +133,9 @@ def reference(g: dict, cur, pull, field, r_e, v_d, rs, c, lam0, v0, sink=True) -
             out["open"], held = t, True
             y[2] = 0.0
     out["high"] = max(high, vs)
+    # the whole release: the flux left at the end (the armature at rest, the diodes blocked)
+    # dies through R_e
+    out.update(e_eddy_all=y[8] + field(y[0], y[1]), w_spring_all=y[7])
     return out
 
 
@@ -149,6 +152,18 @@ def _check(p, r, ref, field0, v_d, zero_rel=1e-5):
     returned = (field0 - ref["field_z"] + ref["w_spring"] - ref["e_eddy"] - float(p.r_off[0]) * b.square[0]
                 - 2 * v_d * b.charge[0])
     assert returned == pytest.approx(ref["e_bus"], rel=1e-4)
+    if r.eddy_energy is None:
+        return
+    # the eddy resistance's loss over the whole release (the run's seventh state and the
+    # flux's tail), and where the diodes block
+    assert r.eddy_energy[0] == pytest.approx(ref["e_eddy_all"], rel=1e-4), "eddy loss, solve_ivp"
+    assert r.block_current[0] == pytest.approx((ref["bus0"] + 2 * v_d) / float(p.eddy[0]), rel=1e-5)
+    # the first law over the whole release: the seated store + the spring's work = the bus's
+    # energy + copper + diodes + the eddy loss (the bus's energy the reference's quadrature)
+    spent = ref["e_bus"] + float(p.r_off[0]) * b.square[0] + 2 * v_d * b.charge[0] + r.eddy_energy[0]
+    print(f"eddy loss {r.eddy_energy[0] / ref['e_eddy_all'] - 1:+.1e}, "
+          f"first law {spent / (field0 + ref['w_spring_all']) - 1:+.1e} (vs solve_ivp)")
+    assert spent == pytest.approx(field0 + ref["w_spring_all"], rel=1e-4), "first law"
 
 
 @pytest.mark.parametrize("name, r_e, rs, c, i0, v0, preload, sink, damping", EDDY, ids=[e[0] for e in EDDY])
@@ -240,11 +255,19 @@ def test_design_on_the_drooping_bus(tmp_path):
     is simulated below) designs it (no refusal); the release is the moving armature's into
     the bus: the bus rises above the highest supply, the release time the armature's on the
     open stop, the switches see at least the highest bus."""
-    out = run_cli("design", _drive_text(tmp_path, True, 400.0), "--json")
+    path = _drive_text(tmp_path, True, 400.0)
+    out = run_cli("design", path, "--json")
     assert out.returncode in (0, 1), out.stderr
     doc = json.loads(out.stdout)
     sup, rel = doc["supply"], doc["release"]
     assert sup["highest_bus_v"] > 28.0
+    # the eddy section's release is the bus run's: the diodes block with the bus above the
+    # highest supply (the stiff bus's block current (V_max + 2 V_d)/R_e is below it), and
+    # the body diodes' energy is the run's charge
+    d = load_drive(path)
+    stiff = (d.supply.max + 2 * d.freewheel.diode_drop) / 400.0
+    assert doc["eddy"]["block_current_a"] > stiff
+    assert doc["eddy"]["release_eddy_energy_j"] > 0 and doc["eddy"]["release_freewheel_energy_j"] > 0
     assert rel["time_s"] == pytest.approx(doc["armature"]["release_open_time_s"], rel=1e-3)
     assert rel["peak_switch_voltage_v"] >= sup["highest_bus_v"]
 

@@ -115,7 +115,8 @@ def decays(drive: Drive, res, i0, peak_time, peak_end) -> list[bus_decay.FastDec
         fast = flux_bus_decay.decay if s.sink else flux_bus_decay.decay_no_sink
         d = fast(i0, np.stack(np.broadcast_arrays(*starts)), drive.release.current, lp.v_on, s.source_resistance,
                  s.capacitance, lp.r_off, coil, lp.diode(drive), **eddy)
-        return [bus_decay.FastDecay(*(getattr(d, f.name)[k] for f in dataclasses.fields(d)))
+        return [bus_decay.FastDecay(*(None if getattr(d, f.name) is None else getattr(d, f.name)[k]
+                                      for f in dataclasses.fields(d)))
                 for k in range(BRIDGE_STARTS)]
     if eddy:
         fast = bus_decay.eddy_decay if s.sink else bus_decay.eddy_decay_no_sink
