@@ -238,3 +238,26 @@ def test_jacobian_matches_central_differences(on):
         fd = (rhs(y + d) - rhs(y - d))[:, 0] / (2 * d[col, 0])
         np.testing.assert_allclose(jac[:, col], fd, rtol=1e-6, atol=1e-9 * np.max(np.abs(fd)) + 1e-12,
                                    err_msg=f"column {col}")
+
+
+@pytest.mark.parametrize("live", [True, False], ids=["conducting", "blocked"])
+def test_jacobian_of_the_release_with_the_eddy_loss(live):
+    """The release into the bus (a full bridge's body diodes, ``returns``) with the eddy
+    loss as a seventh row: the Rosenbrock pair's Jacobian against central differences of the
+    right-hand side (numerical analysis' standard check, step 1e-6 of each state's scale)."""
+    from coildrive.model.armature_flight import _Rhs
+
+    p = _params(*BUSES[1][1:])
+    assert p.eddy is not None, "precondition: the eddy term"
+    rhs = _Rhs(p, np.array([False]), np.array([live]), returns=np.array([1.4]))
+    y = np.array([[0.02], [0.001], [-0.3], [1e-3], [2e-4], [9.5], [1e-3]])
+    jac = rhs.jacobian(y)[0]
+    assert jac.shape == (7, 7)
+    scale = np.array([0.02, 0.001, 0.3, 1e-3, 2e-4, 9.5, 1e-3])
+    for col in range(7):
+        d = np.zeros_like(y)
+        d[col] = 1e-6 * scale[col]
+        fd = (rhs(y + d) - rhs(y - d))[:, 0] / (2 * d[col, 0])
+        np.testing.assert_allclose(jac[:, col], fd, rtol=1e-6, atol=1e-9 * np.max(np.abs(fd)) + 1e-12,
+                                   err_msg=f"column {col}")
+    assert rhs(y)[6, 0] > 0, "the eddy loss flows"
