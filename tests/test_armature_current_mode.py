@@ -512,3 +512,38 @@ def test_bridge_on_the_drooping_bus_simulates(tmp_path):
     msgs, _ = run_device(dev, 0.05 + 2 * dev.period, step=0.05)
     rep = check_capture(capture_of(msgs, tmp_path / "c.cdcap"), d, coil_temp=-10.0)
     assert rep.ok, [(i.name, i.status, i.detail) for i in rep.items if i.status == "FAIL"]
+
+
+def test_bridge_on_the_drooping_bus_firmware_in_the_loop(tmp_path):
+    """The compiled reference driver in the loop with the current-mode hold on the bridge on
+    the cable: the threshold handlers switch the masks on the seated coil, and from the tick
+    that opens all four the device plays the armature's run into the drooping bus (as the
+    design's release); `check` passes at 28 V with a cold coil and at 24 V with a hot one,
+    two actuations each (the second starts from the bus the first left: it must read back
+    at the supply, not SUPPLY_HIGH). Plumbing: the device's physics is the design's."""
+    require_tool("gcc")
+    from test_current_mode_bench import capture_of
+
+    from coildrive.bench.check import check_capture
+    from coildrive.bench.device import DeviceOptions
+    from coildrive.bench.firmware_device import FirmwareDevice
+    from coildrive.bench.protocol import FrameDecoder
+    from coildrive.codegen.driver import render_driver
+    from coildrive.codegen.host_build import build_firmware
+
+    d = make_design(load_drive(_bridge_file(tmp_path, droop=True)))
+    fw = tmp_path / "fw"
+    fw.mkdir()
+    for name, text in render_driver(d, "coil").items():
+        (fw / name).write_text(text)
+    lib = build_firmware(fw, d, cache=tmp_path / "cache")
+    for supply, temp in ((28.0, -10.0), (24.0, 60.0)):
+        dev = FirmwareDevice(d, lib, DeviceOptions(supply=supply, coil_temp=temp, noise_codes=1, seed=3,
+                                                   hold_time=0.03))
+        dec, msgs, now = FrameDecoder(), [], 0.0
+        while dev._t < 0.05 + 2 * dev.period:
+            now += 0.01
+            msgs += dec.feed(dev.read(now))
+        assert sum("release into the bus" in e.text for e in dev._log) == 2, dev._log
+        rep = check_capture(capture_of(msgs, tmp_path / f"{supply:g}.cdcap"), d, coil_temp=temp)
+        assert rep.ok, [(i.name, i.status, i.detail) for i in rep.items if i.status == "FAIL"]

@@ -31,8 +31,9 @@ capacitor, whose voltage the supply conversions then read); from the end of that
 seated coil's RL model (the motional EMF of the armature opening in the release is left
 out). On a full bridge the pull-in runs on the bridge's drive path (Q1 + Q4), the seated
 hold on its slow decay and the release on its fast decay, as without an armature -- but on
-a drooping bus (``supply.source_resistance``) a PWM hold's release rides the bus as the
-design's does: from the conversion at which the driver opens all four, the armature's run
+a drooping bus (``supply.source_resistance``) the release rides the bus as the design's
+does: from the moment the driver opens all four (a PWM hold's conversion, a current-mode
+hold's tick), the armature's run
 into the bus (:func:`coildrive.model.armature_bus_release.release`, recorded; the seated
 coil at the magnetising current there, the bus at the supply; an eddy term too), its
 terminal current sensed and its bus read by the supply conversions until the run ends (the
@@ -179,7 +180,7 @@ class FirmwareDevice(LineOutput):
         self.trace: list[tuple[float, float, int]] | None = [] if trace else None
         self._flight = self._pull_in_flight(faulty, design, l_scale)
         self._flight_t0: float | None = None
-        #: an armature on a full bridge on the drooping bus, a PWM hold: the release run's
+        #: an armature on a full bridge on the drooping bus: the release run's
         #: parameters (``None`` elsewhere) and the run under way (:class:`_BusRun`)
         self._ride = self._release_params(faulty, design, l_scale)
         self._run: _BusRun | None = None
@@ -328,10 +329,9 @@ class FirmwareDevice(LineOutput):
     def _release_params(self, faulty, design, l_scale):
         """The release run's armature parameters on the drooping bus (the release loop,
         the bus's ``R_s`` and ``C``; an eddy term too), for an armature on a full bridge
-        on a drooping bus under a PWM hold; else ``None``."""
+        on a drooping bus; else ``None``."""
         s = faulty.supply
-        if (faulty.armature is None or not s.droops or not full_bridge(faulty)
-                or design.hold.current_mode is not None):
+        if faulty.armature is None or not s.droops or not full_bridge(faulty):
             return None
         from ..model.armature import params_from_loop
         return params_from_loop(faulty.armature, self._loops["release"], l_scale, faulty.coil.eddy_resistance,
@@ -486,9 +486,10 @@ class FirmwareDevice(LineOutput):
 
     def _idle(self) -> bool:
         """Nothing moves: the driver is off or faulted with no command waiting for a tick,
-        the switch is off and the current is zero (its ticks and conversions change nothing)."""
+        the switch is off, the current is zero and no release run is under way (its ticks
+        and conversions change nothing)."""
         return (self._state in (STATE_OFF, STATE_FAULT) and not self._cmd_pending and self._i == 0.0
-                and self._outputs >> 24 & 1 == 0)
+                and self._outputs >> 24 & 1 == 0 and self._run is None)
 
     def _step(self) -> float:
         """One PWM period (or, idle, a run of them up to the next command); returns its s."""
@@ -505,11 +506,11 @@ class FirmwareDevice(LineOutput):
             self.lib.fil_conversion(0, self._supply_code)     # the supply reading stays fresh
             self._take_frames()
             return n * T
-        if self._cm is not None and (self._state == STATE_HOLD or int(self.lib.fil_threshold()) >> 31
-                                     or self._off_expiry is not None):
-            return self._step_current(t0)
-        if self._run is not None:
+        if self._run is not None and self._cm is None:
             return self._step_run(t0)
+        if self._cm is not None and (self._state == STATE_HOLD or int(self.lib.fil_threshold()) >> 31
+                                     or self._off_expiry is not None or self._run is not None):
+            return self._step_current(t0)
         out = self._outputs
         enable, compare = out >> 24 & 1, out & 0xFFFFFF
         on_end = t0 + (T * min(compare, self.period_counts) / self.period_counts if enable else 0.0)
@@ -698,8 +699,7 @@ class FirmwareDevice(LineOutput):
         code = int(self._codes(np.array([float(sensed(s))]))[0])
         self.lib.fil_conversion(code, self._supply_reading(s, None))
         self._outputs = int(self.lib.fil_outputs())
-        if self._outputs >> 24 & 1:
-            raise RuntimeError("the driver switched the coil on again within its release lockout")
+        again = bool(self._outputs >> 24 & 1)
         self._run_samples(s, end, sensed)
         for tt in [x for x in ticks if x >= s]:
             self._do_tick(tt)
@@ -707,8 +707,10 @@ class FirmwareDevice(LineOutput):
         if self.trace is not None:
             x = t0 + (np.arange(64) + 0.5) * (T / 64)
             self.trace.append((t0, float(np.mean(run.magnetising(x))), self._state))
-        if end >= run.t_end:
-            self._run = None                # over: the armature on the open stop, no current
+        if end >= run.t_end or again:
+            # over (the armature on the open stop, no current), or the driver switched on
+            # again before: the RL model of the seated coil from the run's current on
+            self._run = None
         self._t = end
         self._take_frames()
         return T
@@ -752,6 +754,16 @@ class FirmwareDevice(LineOutput):
                     return np.zeros_like(c)
                 return _terminal(c, lp, on)
 
+            if self._run is not None:    # the armature's release run into the drooping bus
+                run = self._run
+
+                def coil(x, run=run):    # noqa: F811 -- the run's current in place of the segment's
+                    return run.magnetising(x)
+
+                def seg(x, run=run):     # noqa: F811
+                    c = run.terminal(x)
+                    return np.zeros_like(c) if self.sense_in_switch else c
+
             armed = int(self.lib.fil_threshold())
             if self._spent is not None and self._spent != (on, armed):
                 self._spent = None         # a new segment or a new arming: the comparator can trip again
@@ -788,7 +800,7 @@ class FirmwareDevice(LineOutput):
             elif what == "conversion":
                 converted = True
                 code = int(self._codes(np.array([float(seg(te))]))[0])
-                self.lib.fil_conversion(code, self._supply_code)
+                self.lib.fil_conversion(code, self._supply_reading(te, None))
             elif what == "trip":
                 above = self._trip[1]
                 self._trip = None
@@ -804,9 +816,15 @@ class FirmwareDevice(LineOutput):
                 self._off_expiry = t + (started - 1) * th.off_prescaler / clock
             if self._cm_segment() != (on, path) or not int(self.lib.fil_threshold()) >> 31:
                 self._trip = None          # another segment, or the comparator disarmed
+            if (self._ride is not None and self._run is None and (on, path) != (False, "release")
+                    and self._cm_segment() == (False, "release") and i > 0.0 and self.options.fault != "open"):
+                # all four open: the armature's release into the drooping bus from here
+                self._run = self._start_run(t, i, None)
         else:
             raise RuntimeError("the current-mode hold's switch chatters: more edges in one PWM period "
                                "than the comparator can make")
+        if self._run is not None and end >= self._run.t_end:
+            self._run = None                # over: the armature on the open stop, no current
         self._i = i
         self._outputs = int(self.lib.fil_outputs())
         if self.trace is not None:      # the period's mean: midpoint rule, 64 points
