@@ -33,11 +33,12 @@ out). On a full bridge the pull-in runs on the bridge's drive path (Q1 + Q4), th
 hold on its slow decay and the release on its fast decay, as without an armature -- but on
 a drooping bus (``supply.source_resistance``) the release rides the bus as the design's
 does: from the moment the driver opens all four (a PWM hold's conversion, a current-mode
-hold's tick), the armature's run
-into the bus (:func:`coildrive.model.armature_bus_release.release`, recorded; the seated
-coil at the magnetising current there, the bus at the supply; an eddy term too), its
-terminal current sensed and its bus read by the supply conversions until the run ends (the
-armature on the open stop, the current stopped); after it, the RL model again.
+hold's tick), the armature's run into the bus
+(:func:`coildrive.model.armature_bus_release.release`, recorded; the seated coil at the
+magnetising current there, or the pull-in run's state where the peak is cut, the bus at the
+supply; an eddy term too), its terminal current sensed and its bus read by the supply
+conversions until the run ends (the armature on the open stop, the current stopped) or the
+driver switches on again; after it, the RL model again.
 
 With a boosted peak (``[supply] boost``) the driver's boost switch (its ``port_boost``
 hook) puts the boost capacitor on the coil: while it is on, the current is the series RLC
@@ -754,6 +755,8 @@ class FirmwareDevice(LineOutput):
                     return np.zeros_like(c)
                 return _terminal(c, lp, on)
 
+            if self._run is not None and on:   # the driver switched on again: the RL model from here
+                self._run = None
             if self._run is not None:    # the armature's release run into the drooping bus
                 run = self._run
 
