@@ -38,6 +38,7 @@ from test_flux_bridge_droop import COIL, against_ngspice
 from test_flux_droop import CURVE_I, CURVE_PSI
 from test_reference_ngspice_bridge import I_DROP, L_COIL, R_COIL, R_SENSE, V_D, V_SUP
 
+from coildrive.config import load_drive
 from coildrive.model import bus_decay, flux, flux_bus_decay
 
 #: ohm: the block current (v + 2 V_d)/R_e is about 0.26 A, above the drop-out current
@@ -59,7 +60,10 @@ def test_peak_and_release_match_ngspice(tmp_path, kind, sink):
 
 def _reference(coil, i0, v0, i_drop, r_s, c, r, r_e, sink=True, i_c=0.0):
     """scipy's solve_ivp (``i_c`` A drawn off the bus throughout): ``(zero s, drop-out s,
-    highest bus V, bus at zero V, charge C)``."""
+    highest bus V, bus at zero V, charge C, the eddy resistance's loss J)`` (the loss ``R_e
+    (i_m - i_t)^2`` integrated to the block, then ``R_e i_m^2`` over the flux's tail until the
+    magnetising current is 1e-7 of the block's), and ``(energy into the bus J, int i_t^2 dt
+    A^2 s)`` to the block (for the first law)."""
     from scipy.integrate import solve_ivp
 
     def ld(i):
@@ -68,10 +72,11 @@ def _reference(coil, i0, v0, i_drop, r_s, c, r, r_e, sink=True, i_c=0.0):
     def terminal(x):   # the loop through the diodes: -(v + 2 V_d) = R i + R_e (i - i_m)
         return (r_e * x[0] - x[1] - 2 * V_D) / (r + r_e)
 
-    def f(t, x):       # x = (magnetising A, bus V, charge C)
+    def f(t, x):       # x = (magnetising A, bus V, charge C, eddy loss J, into the bus J, copper A^2 s)
         i = terminal(x)
         feed = (V_SUP - x[1]) / r_s
-        return [r_e * (i - x[0]) / ld(x[0]), (i + (feed if sink else max(feed, 0.0)) - i_c) / c, i]
+        return [r_e * (i - x[0]) / ld(x[0]), (i + (feed if sink else max(feed, 0.0)) - i_c) / c, i,
+                r_e * (i - x[0]) ** 2, x[1] * i, i * i]
 
     def zero(t, x):
         return terminal(x)
@@ -79,9 +84,18 @@ def _reference(coil, i0, v0, i_drop, r_s, c, r, r_e, sink=True, i_c=0.0):
 
     def drop(t, x):
         return x[0] - i_drop
-    s = solve_ivp(f, [0, 1], [i0, v0, 0.0], method="Radau", events=[zero, drop], rtol=1e-11, atol=1e-13,
-                  dense_output=True)
-    t_zero, (i_z, v_z, q) = s.t_events[0][0], s.y_events[0][0]
+    s = solve_ivp(f, [0, 1], [i0, v0, 0.0, 0.0, 0.0, 0.0], method="Radau", events=[zero, drop], rtol=1e-11,
+                  atol=1e-13, dense_output=True)
+    t_zero, (i_z, v_z, q, w_z, w_bus, sq) = s.t_events[0][0], s.y_events[0][0]
+
+    def tail_loss(t, x):   # (magnetising A, loss J) through R_e alone
+        return [-r_e * x[0] / ld(x[0]), r_e * x[0] ** 2]
+
+    def gone(t, x):
+        return x[0] - 1e-7 * i_z
+    gone.terminal = True
+    loss = w_z + solve_ivp(tail_loss, [0, 10], [i_z, 0.0], method="Radau", events=gone, rtol=1e-11,
+                           atol=1e-15).y[1, -1]
     if s.t_events[1].size:
         t_drop = s.t_events[1][0]
     else:              # the flux's tail through R_e alone: dpsi/dt = -R_e i_m
@@ -94,7 +108,7 @@ def _reference(coil, i0, v0, i_drop, r_s, c, r, r_e, sink=True, i_c=0.0):
         t_drop = t_zero + solve_ivp(tail, [0, 1], [i_z], method="Radau", events=down, rtol=1e-11,
                                     atol=1e-13).t_events[0][0]
     v_top = max(float(np.max(s.sol(np.linspace(0, t_zero, 20001))[1])), V_SUP - r_s * i_c)
-    return t_zero, t_drop, v_top, v_z, q
+    return (t_zero, t_drop, v_top, v_z, q, loss), (w_bus, sq)
 
 
 @pytest.mark.parametrize("sink", [True, False], ids=["sink", "no-sink"])
@@ -110,11 +124,16 @@ def test_fast_decay_against_solve_ivp(kind, sink):
             ("linear", True): bus_decay.eddy_decay, ("linear", False): bus_decay.eddy_decay_no_sink}[kind, sink]
     d = fast(i0, v0, I_DROP, V_SUP, r_s, c, r, coil, V_D, r_e)     # every case at once
     for k, case in enumerate(cases):
-        ref = _reference(coil, *case[:2], I_DROP, *case[2:4], r, case[4], sink)
-        got = [float(x[k]) for x in (d.zero_time, d.drop_time, d.bus_max, d.bus_at_zero, d.charge)]
+        ref, (w_bus, sq) = _reference(coil, *case[:2], I_DROP, *case[2:4], r, case[4], sink)
+        got = [float(x[k]) for x in (d.zero_time, d.drop_time, d.bus_max, d.bus_at_zero, d.charge,
+                                     d.eddy_energy)]
         print(f"case {k}: " + ", ".join(f"{g / e - 1:+.1e}" for g, e in zip(got, ref)) + " (vs solve_ivp)")
-        # scipy solve_ivp (Radau, rtol 1e-11): the times, the buses and the charge to 1e-5
+        # scipy solve_ivp (Radau, rtol 1e-11): the times, the buses, the charge and the eddy
+        # resistance's loss over the whole release to 1e-5
         assert got == pytest.approx(ref, rel=1e-5), (k, got, ref)
+        if kind == "linear":   # the first law: the field's store = bus + copper + diodes + eddy loss
+            spent = w_bus + r * sq + 2 * V_D * float(d.charge[k]) + float(d.eddy_energy[k])
+            assert spent == pytest.approx(0.5 * L_COIL * case[0] ** 2, rel=1e-6), "first law"
     assert float(d.drop_time[1]) > float(d.zero_time[1]), "precondition: a drop-out in the tail"
 
 
@@ -153,5 +172,9 @@ def test_design_end_to_end(tmp_path, kind, sink):
     assert sup["highest_bus_v"] > 28.0 and sup["lowest_bus_v"] < 20.0 and doc["eddy"]["resistance_ohm"] == 200.0
     assert rel["peak_switch_voltage_v"] >= sup["highest_bus_v"] + 0.7
     assert [c for c in doc["checks"] if c["name"] == "capacitor_voltage"][0]["ok"]
+    # the eddy section's release is the bus runs': the diodes block with the bus pumped above
+    # the highest supply, above the stiff bus's block current (V_max + 2 V_d)/R_e
+    d = load_drive(p)
+    assert doc["eddy"]["block_current_a"] > (d.supply.max + 2 * d.freewheel.diode_drop) / 200.0
     if sink == "false":   # bridge.pump_up's RK4 over the magnetising current (O(h^2) at the block)
         assert sup["highest_bus_v"] == pytest.approx(doc["topology"]["bridge"]["pumped_bus_v"], rel=1e-6)

@@ -30,7 +30,15 @@ design's armature model (the pull-in with its dip; on a drooping bus with the bu
 capacitor, whose voltage the supply conversions then read); from the end of that peak on, the
 seated coil's RL model (the motional EMF of the armature opening in the release is left
 out). On a full bridge the pull-in runs on the bridge's drive path (Q1 + Q4), the seated
-hold on its slow decay and the release on its fast decay, as without an armature.
+hold on its slow decay and the release on its fast decay, as without an armature -- but on
+a drooping bus (``supply.source_resistance``) the release rides the bus as the design's
+does: from the moment the driver opens all four (a PWM hold's conversion, a current-mode
+hold's tick), the armature's run into the bus
+(:func:`coildrive.model.armature_bus_release.release`, recorded; the seated coil at the
+magnetising current there, or the pull-in run's state where the peak is cut, the bus at the
+supply; an eddy term too), its terminal current sensed and its bus read by the supply
+conversions until the run ends (the armature on the open stop, the current stopped) or the
+driver switches on again; after it, the RL model again.
 
 With a boosted peak (``[supply] boost``) the driver's boost switch (its ``port_boost``
 hook) puts the boost capacitor on the coil: while it is on, the current is the series RLC
@@ -73,7 +81,7 @@ import numpy as np
 
 from ..model import boost as boost_model
 from ..model import eddy
-from ..model.circuit import loop
+from ..model.circuit import full_bridge, loop
 from ..model.eddy import EddyCoil
 from ..model.rl import decay_current, decay_time, rise_current, rise_time
 from .messages import Opcode, Reply, ReplyStatus
@@ -181,6 +189,10 @@ class FirmwareDevice(LineOutput):
             self._arm = BoostFlight(faulty, self._loops["hold"], self._loops["release"], l_scale)
         self._flight = None if self._arm is not None else self._pull_in_flight(faulty, design, l_scale)
         self._flight_t0: float | None = None
+        #: an armature on a full bridge on the drooping bus: the release run's
+        #: parameters (``None`` elsewhere) and the run under way (:class:`_BusRun`)
+        self._ride = self._release_params(faulty, design, l_scale)
+        self._run: _BusRun | None = None
         self.sample_rate = float(board.adc.sample_rate)
         self.tick_rate = float(board.tick.rate)
         self.pwm_period = 1.0 / design.timer.frequency_hz
@@ -279,10 +291,6 @@ class FirmwareDevice(LineOutput):
     def check_design(design) -> None:
         """``ValueError`` for a design the loop cannot run yet (see the module docstring)."""
         d = design.drive
-        if d.armature is not None and d.supply.droops and d.coil.eddy_resistance:
-            raise ValueError("firmware in the loop does not run a moving [armature] with an eddy-current "
-                             "term on a drooping bus (supply.source_resistance) yet: emulate it without "
-                             "--firmware (the model's device)")
         if d.armature is not None and d.supply.boosted and d.supply.droops:
             raise ValueError("firmware in the loop does not run a moving [armature] on a boosted peak on a "
                              "drooping main supply (supply.source_resistance) yet (its device flies the hold "
@@ -299,7 +307,7 @@ class FirmwareDevice(LineOutput):
         (``supply.source_resistance``) the run carries the bulk capacitor, as the design's
         pull-in does: :attr:`_flight_bus` is then its bus voltage (V) at those times, which
         the driver's supply conversions read while the flight lasts."""
-        self._flight_bus = None
+        self._flight_bus = self._flight_state = None
         if faulty.armature is None:
             return None
         from ..model.armature import params_from_loop
@@ -314,17 +322,58 @@ class FirmwareDevice(LineOutput):
         i_m = traj.current if traj.magnetising_current is None else traj.magnetising_current
         if traj.bus is not None:
             self._flight_bus = np.asarray(traj.bus, float)
+        #: the run's flux linkage Wb, gap m and speed m/s (a release from within the flight)
+        self._flight_state = tuple(np.asarray(a, float) for a in (traj.flux, traj.position, traj.velocity))
         return np.asarray(traj.time, float), np.asarray(i_m, float)
 
     def _supply_reading(self, t: float, flight: float | None) -> int:
         """The supply conversion's code at device time ``t`` s: the bus of the pull-in run
-        (started at ``flight`` s) on a drooping bus while it lasts, else the supply."""
-        if flight is None or self._flight_bus is None:
+        (started at ``flight`` s) on a drooping bus while it lasts, or of the release run
+        under way, else the supply."""
+        if self._run is not None and t >= self._run.t0:
+            volts = self._run.bus(t)
+        elif flight is None or self._flight_bus is None:
             return self._supply_code
+        else:
+            volts = float(np.interp(t - flight, self._flight[0], self._flight_bus))
         b = self.drive.board
-        volts = float(np.interp(t - flight, self._flight[0], self._flight_bus))
         return int(min(max(math.floor(volts / b.supply_sense.divider / b.adc.reference * 2**b.adc.bits),
                            0), self._full))
+
+    def _release_params(self, faulty, design, l_scale):
+        """The release run's armature parameters on the drooping bus (the release loop,
+        the bus's ``R_s`` and ``C``; an eddy term too), for an armature on a full bridge
+        on a drooping bus; else ``None``."""
+        s = faulty.supply
+        if faulty.armature is None or not s.droops or not full_bridge(faulty):
+            return None
+        from ..model.armature import params_from_loop
+        return params_from_loop(faulty.armature, self._loops["release"], l_scale, faulty.coil.eddy_resistance,
+                                bus=(s.source_resistance, s.capacitance))
+
+    def _start_run(self, t: float, i_m: float, flight: float | None) -> "_BusRun":
+        """The armature's release run into the drooping bus from device time ``t`` s: the
+        seated coil at the (magnetising) current ``i_m`` A, the bus at the supply; or, within
+        the pull-in run started at ``flight`` s (a turn-off in the peak: a fault, the peak
+        cut short), from that run's flux, gap, speed and bus there."""
+        from ..model.armature_bus_release import release
+
+        p, fast = self._ride, self._loops["release"]
+        if flight is not None:
+            at = t - flight
+            start = tuple(np.array([float(np.interp(at, self._flight[0], a))]) for a in self._flight_state)
+            v0 = float(np.interp(at, self._flight[0], self._flight_bus))
+        else:
+            start = (p.flux_closed(np.array([max(i_m, 0.0)])), np.array([0.0]), np.array([0.0]))
+            v0 = float(self.supply)
+        v0 = min(v0, float(self.supply))
+        r = release(p, 0.0, v0, float(fast.v_off - fast.v_on), sink=self.drive.supply.sink, start=start, record=8)
+        tt, y, i_t = r.path
+        self._log.append(LogEntry(t, f"release into the bus from {float(p.current(start[0], start[1])[0]):.6g} A "
+                                     f"at {v0:.6g} V: current stops after {1e3 * float(r.run.zero_time[0]):.6g} ms, "
+                                     f"open after {1e3 * float(r.run.open_time[0]):.6g} ms"))
+        return _BusRun(t, tt, np.asarray(p.current(y[0], y[1]), float), np.asarray(i_t, float),
+                       np.asarray(y[5], float))
 
     # ------------------------------------------------------------------ emulator interface
     def receive(self, data: bytes, now: float) -> list[Reply]:
@@ -451,9 +500,10 @@ class FirmwareDevice(LineOutput):
 
     def _idle(self) -> bool:
         """Nothing moves: the driver is off or faulted with no command waiting for a tick,
-        the switch is off and the current is zero (its ticks and conversions change nothing)."""
+        the switch is off, the current is zero and no release run is under way (its ticks
+        and conversions change nothing)."""
         return (self._state in (STATE_OFF, STATE_FAULT) and not self._cmd_pending and self._i == 0.0
-                and self._outputs >> 24 & 1 == 0)
+                and self._outputs >> 24 & 1 == 0 and self._run is None)
 
     def _step(self) -> float:
         """One PWM period (or, idle, a run of them up to the next command); returns its s."""
@@ -470,8 +520,10 @@ class FirmwareDevice(LineOutput):
             self.lib.fil_conversion(0, self._supply_code)     # the supply reading stays fresh
             self._take_frames()
             return n * T
+        if self._run is not None and self._cm is None:
+            return self._step_run(t0)
         if self._cm is not None and (self._state == STATE_HOLD or int(self.lib.fil_threshold()) >> 31
-                                     or self._off_expiry is not None):
+                                     or self._off_expiry is not None or self._run is not None):
             return self._step_current(t0)
         out = self._outputs
         enable, compare = out >> 24 & 1, out & 0xFFFFFF
@@ -555,7 +607,16 @@ class FirmwareDevice(LineOutput):
                                    lp.inductance)
             return np.where(x <= fast_t, i_fast, i_slow)
 
+        #: the release run started at this period's conversion (an armature riding the bus)
+        ride: list[_BusRun] = []
+
         def current(x):
+            x = np.asarray(x, float)
+            if ride:
+                return np.where(x <= ride[0].t0, plain_current(x), ride[0].magnetising(x))
+            return plain_current(x)
+
+        def plain_current(x):
             x = np.asarray(x, float)
             i_on = on_current(np.minimum(x, on_end))
             i_end = on_current(on_end)
@@ -570,6 +631,8 @@ class FirmwareDevice(LineOutput):
 
         def sensed(x):
             i = terminal_current(x, current(x))
+            if ride:   # the run's terminal current after the turn-off
+                i = np.where(np.asarray(x) <= ride[0].t0, i, ride[0].terminal(x))
             return np.where(np.asarray(x) < on_end, i, 0.0) if self.sense_in_switch else i
 
         # conversion point: middle of the on-time under the switch, middle of the period in the coil path
@@ -588,6 +651,10 @@ class FirmwareDevice(LineOutput):
             on_end = s                      # the switch output is disabled at once
         if self._bridge is not None and bypass and not new >> 24 & 1:
             cut.append(s)                   # the bridge opens all four: fast decay from here
+        if self._ride is not None and enable and not new >> 24 & 1 and self.options.fault != "open":
+            # all four open: the armature's release into the drooping bus from here
+            self._run = self._start_run(s, float(current(s)), flight)
+            ride.append(self._run)
         if boosting and not (new >> 26 & 1 and new >> 24 & 1):
             boost_cut.append(s)             # the boost switch off now: the main supply from here
         late = None
@@ -683,6 +750,43 @@ class FirmwareDevice(LineOutput):
             self.trace.append((t0, float(np.mean(np.where(x < s, first(x), second(x)))), self._state))
         fl.settle(bool(new >> 24 & 1))
         self._t = t0 + T
+
+    def _step_run(self, t0: float) -> float:
+        """One PWM period while the armature's release run into the drooping bus lasts: its
+        terminal current sensed, its bus read by the conversions, the driver's ticks; when
+        the run has ended, the RL model from its magnetising current on."""
+        T, run = self.pwm_period, self._run
+        self._flight_t0 = None
+        end = t0 + T
+        ticks = []
+        while self._tick / self.tick_rate < end:
+            ticks.append(self._tick / self.tick_rate)
+            self._tick += 1
+
+        def sensed(x):
+            i = run.terminal(x)
+            return np.zeros_like(i) if self.sense_in_switch else i
+
+        s = t0 + 0.5 * T
+        self._run_samples(t0, s, sensed)
+        for tt in [x for x in ticks if x < s]:
+            self._do_tick(tt)
+        code = int(self._codes(np.array([float(sensed(s))]))[0])
+        self.lib.fil_conversion(code, self._supply_reading(s, None))
+        self._outputs = int(self.lib.fil_outputs())
+        again = bool(self._outputs >> 24 & 1)
+        self._run_samples(s, end, sensed)
+        for tt in [x for x in ticks if x >= s]:
+            self._do_tick(tt)
+        self._i = float(run.magnetising(end))
+        if self.trace is not None:
+            x = t0 + (np.arange(64) + 0.5) * (T / 64)
+            self.trace.append((t0, float(np.mean(run.magnetising(x))), self._state))
+        if end >= run.t_end or again:
+            # over (the armature on the open stop, no current), or the driver switched on
+            # again before: the RL model of the seated coil from the run's current on
+            self._run = None
+        self._t = end
         self._take_frames()
         return T
 
@@ -728,6 +832,18 @@ class FirmwareDevice(LineOutput):
                     return np.zeros_like(c)
                 return _terminal(c, lp, on)
 
+            if self._run is not None and on:   # the driver switched on again: the RL model from here
+                self._run = None
+            if self._run is not None:    # the armature's release run into the drooping bus
+                run = self._run
+
+                def coil(x, run=run):    # noqa: F811 -- the run's current in place of the segment's
+                    return run.magnetising(x)
+
+                def seg(x, run=run):     # noqa: F811
+                    c = run.terminal(x)
+                    return np.zeros_like(c) if self.sense_in_switch else c
+
             armed = int(self.lib.fil_threshold())
             if self._spent is not None and self._spent != (on, armed):
                 self._spent = None         # a new segment or a new arming: the comparator can trip again
@@ -764,7 +880,7 @@ class FirmwareDevice(LineOutput):
             elif what == "conversion":
                 converted = True
                 code = int(self._codes(np.array([float(seg(te))]))[0])
-                self.lib.fil_conversion(code, self._supply_code)
+                self.lib.fil_conversion(code, self._supply_reading(te, None))
             elif what == "trip":
                 above = self._trip[1]
                 self._trip = None
@@ -780,9 +896,15 @@ class FirmwareDevice(LineOutput):
                 self._off_expiry = t + (started - 1) * th.off_prescaler / clock
             if self._cm_segment() != (on, path) or not int(self.lib.fil_threshold()) >> 31:
                 self._trip = None          # another segment, or the comparator disarmed
+            if (self._ride is not None and self._run is None and (on, path) != (False, "release")
+                    and self._cm_segment() == (False, "release") and i > 0.0 and self.options.fault != "open"):
+                # all four open: the armature's release into the drooping bus from here
+                self._run = self._start_run(t, i, None)
         else:
             raise RuntimeError("the current-mode hold's switch chatters: more edges in one PWM period "
                                "than the comparator can make")
+        if self._run is not None and end >= self._run.t_end:
+            self._run = None                # over: the armature on the open stop, no current
         self._i = i
         self._outputs = int(self.lib.fil_outputs())
         if self.trace is not None:      # the period's mean: midpoint rule, 64 points
@@ -852,3 +974,24 @@ class FirmwareDevice(LineOutput):
         self.lib.fil_push_block(codes.ctypes.data_as(ctypes.POINTER(ctypes.c_uint16)), codes.size)
         self._k = k1
         self.stats.samples_sent += codes.size
+
+
+class _BusRun:
+    """An armature's release run into the drooping bus as the device plays it: started at
+    device time ``t0`` s, the run's times ``time`` s (from its turn-off), magnetising (the
+    coil's) current A, terminal current A (what the sense resistor carries; 0 once the
+    diodes block) and bus V; past the run's end each holds its last value (the device
+    then hands over to the RL model)."""
+
+    def __init__(self, t0: float, time, magnetising, terminal, bus):
+        self.t0, self._t, self._m, self._i, self._v = float(t0), time, magnetising, terminal, bus
+        self.t_end = self.t0 + float(time[-1])
+
+    def magnetising(self, x):
+        return np.interp(np.asarray(x, float) - self.t0, self._t, self._m)
+
+    def terminal(self, x):
+        return np.interp(np.asarray(x, float) - self.t0, self._t, self._i)
+
+    def bus(self, x) -> float:
+        return float(np.interp(float(x) - self.t0, self._t, self._v))

@@ -282,7 +282,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                   actuation_points=points, peak_table=None, topology=topo, thermal_cycle=thermal, supply=sup,
                   boost=boost,
                   rise_check=rise_check(drive, env, res, f), seat_check=seat_check(drive, env, res_low),
-                  eddy=eddy_result(drive, env, res))
+                  eddy=eddy_result(drive, env, res, long_, peak_end))
 
 
 def _loop(drive, env, lp, res_low, duty, f, period, setpoint, lsb, min_compare, max_compare,

@@ -543,7 +543,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
         actuation_points=points, armature=arm, topology=topo, thermal_cycle=thermal, supply=sup, boost=boost,
         input_hash=drive.input_hash(), worst_corner_index=k_pull,
         rise_check=rise_check(drive, grid, res, fallback.timer.frequency_hz),
-        seat_check=seat_check(drive, grid, res), eddy=eddy_result(drive, grid, res))
+        seat_check=seat_check(drive, grid, res),
+        eddy=eddy_result(drive, grid, res, pk.long_time, res.peak_end_current))
 
 
 def drooping_bus(drive: Drive, grid, res: PointResults, peak_time, duty, thresholds,

@@ -183,7 +183,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                  split_decay=split, actuation_points=points, peak_table=pk.table,
                  thermal_cycle=thermal, topology=topo, supply=sup, boost=boost,
                  rise_check=rise_check(drive, env, res, f_hold),
-                 seat_check=seat_check(drive, env, res_low), eddy=eddy_result(drive, env, res))
+                 seat_check=seat_check(drive, env, res_low), eddy=eddy_result(drive, env, res, long_, peak_end))
     if samples > 0:
         from .montecarlo import monte_carlo
 

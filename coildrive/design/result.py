@@ -385,7 +385,10 @@ class EddyResult:
     of the release from the top of the hold ripple, at its worst corner
     (``release_corner``), beside ``release_freewheel_energy_j``, the freewheel elements'
     there. ``flux_outlasts_s``: how much longer the flux takes to fall to the drop-out
-    current than the terminal current takes to reach zero (0 when it does not).
+    current than the terminal current takes to reach zero (0 when it does not). On a
+    full bridge on the drooping bus these four are the fast decay's into the bus (the
+    worst over the starting buses; a moving armature's run into it), the block current
+    ``(v + 2 V_d) / R_e`` with the bus at the block.
     ``hold_eddy_power_w``: the eddy resistance's power in the hold, at its worst corner
     (``hold_corner``)."""
 

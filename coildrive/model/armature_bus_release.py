@@ -34,7 +34,12 @@ else changes. With an eddy term (``p.eddy``: ``R_e`` across the magnetising bran
 while ``i_t > 0``; at its zero the diodes block (the steppers' event) and the flux dies on
 through ``R_e`` alone (``dlambda/dt = -R_e i``), the bus relaxing without the coil. That
 may come while the armature is seated (then it lets go later, on the flux's tail). The
-charge, ``int i^2 dt``, the zero time and the bus then are the terminal current's.
+charge, ``int i^2 dt``, the zero time and the bus then are the terminal current's. The
+run carries a seventh state with the term, the eddy resistance's loss ``int R_e (i -
+i_t)^2 dt`` (``i_t`` 0 once blocked); the field's energy left when the run ends (the
+armature on the open stop, the diodes blocked) dies through ``R_e`` too, so
+``eddy_energy`` is the loss of the whole release, and ``block_current`` the magnetising
+current at the diodes' block, ``(u + 2 V_d)/R_e`` with the bus then.
 
 ``release(record=...)`` keeps one point's run as samples (``simulate`` draws the release
 from them).
@@ -62,13 +67,18 @@ class BusRelease:
     ``V_s`` it relaxes back to, if higher) with ``highest_bus_time`` s (``inf`` when
     that is ``V_s``), and the bus when the current stops ``bus_at_zero`` V. ``path``
     (``record``, one point): the run as samples, ``(time s, state 6 x m, terminal current
-    A)`` -- the state's rows ``lambda, x, v, q, sq, u``; else ``None``."""
+    A)`` -- the state's rows ``lambda, x, v, q, sq, u`` (and the eddy loss with the term);
+    else ``None``. With an eddy term (else ``None``): ``eddy_energy`` J, the eddy
+    resistance's loss over the whole release (the flux's tail to zero), and
+    ``block_current`` A, the magnetising current where the diodes block."""
 
     run: ReleaseBatch
     highest_bus: np.ndarray
     highest_bus_time: np.ndarray
     bus_at_zero: np.ndarray
     path: tuple | None = None
+    eddy_energy: np.ndarray | None = None
+    block_current: np.ndarray | None = None
 
 
 def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
@@ -90,10 +100,11 @@ def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
     lam_stay = p.flux_closed(p.stay_current)
     lam_start = p.flux_open(p.start_current)
     zeros = np.zeros(n)
+    loss = [zeros] if p.eddy is not None else []    # the eddy loss, a seventh state
     if start is None:
-        y = np.stack([p.flux_closed(i_off), zeros, zeros, zeros, zeros, v0])
+        y = np.stack([p.flux_closed(i_off), zeros, zeros, zeros, zeros, v0, *loss])
     else:
-        y = np.stack([*(np.broadcast_to(np.asarray(a, float), (n,)) for a in start), zeros, zeros, v0])
+        y = np.stack([*(np.broadcast_to(np.asarray(a, float), (n,)) for a in start), zeros, zeros, v0, *loss])
     i_m = p.current(y[0], y[1])
     on_seat = (y[1] <= 0.0) & (y[2] <= 0.0)
     off = np.zeros(n, bool)
@@ -173,9 +184,14 @@ def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
     above = high[0] > v_s
     run = ReleaseBatch(status=status, unlatch_time=unlatch, open_time=open_time, zero_time=zero_time,
                        charge=y[3], square=y[4], stall_gap=stall_gap, bound=bound, steps=steps)
+    eddy_energy = block = None
+    if p.eddy is not None:   # the flux left at the end dies through R_e (the armature at rest)
+        eddy_energy = y[6] + p.field_energy(np.maximum(y[0], 0.0), y[1])
+        block = (bus_zero + v_d2) / p.eddy
     return BusRelease(run=run, highest_bus=np.where(above, high[0], v_s),
                       highest_bus_time=np.where(above, high[1], np.inf), bus_at_zero=bus_zero,
-                      path=None if not record else _path(p, pieces, v_d2, sink, record))
+                      path=None if not record else _path(p, pieces, v_d2, sink, record),
+                      eddy_energy=eddy_energy, block_current=block)
 
 
 def _path(p: ArmatureParams, pieces, v_d2, sink: bool, dense: int) -> tuple:
@@ -200,7 +216,7 @@ def _path(p: ArmatureParams, pieces, v_d2, sink: bool, dense: int) -> tuple:
         tt = t[:-1] + theta * h
         order = np.argsort(tt.T.ravel(), kind="stable")
         tt = tt.T.ravel()[order]
-        yy = np.transpose(yy, (0, 2, 1)).reshape(6, -1)[:, order]
+        yy = np.transpose(yy, (0, 2, 1)).reshape(y.shape[0], -1)[:, order]
         if not ys:   # the turn-off's own sample
             ts.append(t[:1])
             ys.append(y[:, :1])
@@ -220,7 +236,8 @@ def release_over(p: ArmatureParams, i_off, lowest, highest, v_diodes, starts: in
     each figure the worst over the starts: the latest unlatch, open stop and zero current,
     the most charge and ``int i^2 dt``, the highest bus (its time and the bus at zero
     current from the start that gives it); a point that fails to open from any start
-    fails (``NOT_OPEN``, its gap from that start)."""
+    fails (``NOT_OPEN``, its gap from that start); with an eddy term the most eddy loss and
+    the highest block current."""
     n = len(p)
     lo, hi = (np.broadcast_to(np.asarray(a, float), (n,)) for a in (lowest, highest))
     v0 = np.concatenate([lo + (hi - lo) * k / max(starts - 1, 1) for k in range(starts)])
@@ -242,6 +259,9 @@ def release_over(p: ArmatureParams, i_off, lowest, highest, v_diodes, starts: in
                        zero_time=worst(b.zero_time), charge=worst(b.charge), square=worst(b.square),
                        stall_gap=np.where(failed.any(axis=0), gap, np.nan), bound=worst(b.bound),
                        steps=np.reshape(b.steps, (starts, n)).sum(axis=0))
+    eddy_energy, block = ((None, None) if r.eddy_energy is None
+                          else (worst(r.eddy_energy), worst(r.block_current)))
     return BusRelease(run=run, highest_bus=worst(r.highest_bus),
                       highest_bus_time=np.reshape(r.highest_bus_time, (starts, n))[k_bus, cols],
-                      bus_at_zero=np.reshape(r.bus_at_zero, (starts, n))[k_bus, cols])
+                      bus_at_zero=np.reshape(r.bus_at_zero, (starts, n))[k_bus, cols],
+                      eddy_energy=eddy_energy, block_current=block)

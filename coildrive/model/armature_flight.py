@@ -80,6 +80,10 @@ class _Rhs:
     2 V_d + R_off i)``, the bus taking the terminal current ``(R_e i - u - 2 V_d)/(R_off +
     R_e)`` while it is positive; blocked (not ``live``), ``dlambda/dt = -R_e i`` and the bus
     relaxes alone.
+
+    A seventh row (an eddy term only: the caller stacks it) integrates the eddy
+    resistance's loss ``R_e (i - i_t)^2`` W, ``i_t`` the terminal current (0 blocked: the
+    flux's whole decay through ``R_e``); like ``q`` and ``sq`` it feeds nothing back.
     """
 
     def __init__(self, p: ArmatureParams, on: np.ndarray, live: np.ndarray, held: np.ndarray | None = None,
@@ -131,6 +135,7 @@ class _Rhs:
                 self.k_back = np.where(back, re_ / c, 0.0)
                 self.tu = np.where(back, -1.0 / c, self.tu)
                 self.t0 = np.where(back, -self.v_d2 / c, self.t0)
+        self.r_e = p.eddy
         self.f0 = (p.preload + p.rate * p.stroke + p.load) / p.mass
         self.km = p.rate / p.mass
         self.cm = p.beta * self.inv_lc / (2.0 * p.mass)
@@ -157,6 +162,7 @@ class _Rhs:
             i, di_dl, di_dx, _, df = self.curves.state(lam, x)
             df_dl = df * self.inv_m
         m = y.shape[0]
+        i_m, dl_m, dx_m = i, di_dl, di_dx
         jac = np.zeros((n, m, m))
         jac[:, 0, 0] = -self.live * self.drive_r * di_dl
         jac[:, 0, 1] = -self.live * self.drive_r * di_dx
@@ -184,6 +190,12 @@ class _Rhs:
                 jac[:, 4, 0] = 2.0 * i * di_dl
                 jac[:, 4, 1] = 2.0 * i * di_dx
                 jac[:, 5, 5] -= feed * self.inv_c * self.tu
+        if m > 6:   # the eddy loss R_e (i_m - i_t)^2 (i: the terminal current here)
+            g = 2.0 * self.r_e * (i_m - i)
+            jac[:, 6, 0] = g * (1.0 - self.t1) * dl_m
+            jac[:, 6, 1] = g * (1.0 - self.t1) * dx_m
+            if self.tu is not None:
+                jac[:, 6, 5] = -g * self.tu
         jac[:, 1, :] *= np.reshape(self.free, (-1, 1))
         jac[:, 2, :] *= np.reshape(self.free, (-1, 1))
         return jac
@@ -238,7 +250,10 @@ class _Rhs:
             out[0] = self.live * (self.drive_v - self.drive_r * i)
         out[1] = self.free * v
         out[2] = self.free * (self.f0 - self.km * x - pull - self.dm * v)
+        i_m = i
         i = self.terminal(i, u)
+        if y.shape[0] > 6:   # the eddy resistance's loss
+            out[6] = self.r_e * (i_m - i) ** 2
         if self.droop:
             feed = self.on if self.back is None else self.on - self.back * self.live
             fed = self.v_s - u if self.sink else np.maximum(self.v_s - u, 0.0)

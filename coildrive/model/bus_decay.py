@@ -78,7 +78,8 @@ class FastDecay:
     current and to zero (s), the highest bus (V: while the current flows, ``bus_top``,
     or the source's ``V_s`` it relaxes to after, if higher) and when (s; ``inf`` when that
     is ``V_s``), the bus when the current stops (V), and the charge the current carries
-    until then (C, ``int i dt``)."""
+    until then (C, ``int i dt``); with an eddy term (else ``None``) the eddy resistance's
+    loss over the whole release (J: while the diodes conduct, then the flux's tail)."""
 
     drop_time: np.ndarray
     zero_time: np.ndarray
@@ -87,6 +88,7 @@ class FastDecay:
     bus_max_time: np.ndarray
     bus_at_zero: np.ndarray
     charge: np.ndarray
+    eddy_energy: np.ndarray | None = None
 
 
 def _fed(i0, v0, v_s, r_s, c, r, l, v_d):
@@ -226,8 +228,10 @@ def _eddy_run(b, i0, v0, i_drop, v_s, v_d, r_e):
     u_low, t_low = supply.lowest_from(t_zero, b, i0, u0)
     v_top = -u_low - 2.0 * v_d
     charge = supply.integrals_from(t_zero, b, i0, u0)[0]
+    # the eddy loss while the diodes conduct, then the field's whole store at the block
+    loss = supply.eddy_loss_from(t_zero, b, i0, u0) + 0.5 * l * i_z * i_z
     return FastDecay(t_drop, t_zero, v_top, np.maximum(v_top, v_s), np.where(v_top > v_s, t_low, np.inf),
-                     -u_z - 2.0 * v_d, charge), at
+                     -u_z - 2.0 * v_d, charge, loss), at
 
 
 def eddy_trace(t, i0, v0, v_s, r_s, c, r, l, v_d, r_e, sink: bool = True):
@@ -287,8 +291,11 @@ def _eddy_no_sink(i0, v0, i_drop, v_s, r_s, c, r, l, v_d, r_e):
     t_zero = np.where(blocked, t_a + alone.zero_time, fed.zero_time)
     bus_top = np.where(blocked, v_end, fed.bus_top)
     when = np.where(blocked, t_zero, fed.bus_max_time)
+    # the eddy loss: the fed stretch to the moment the bus reaches v_s, then the capacitor alone's
+    loss_a = supply.eddy_loss_from(t_a, b_fed, i0, u0)
+    loss = np.where(blocked, loss_a + alone.eddy_energy, fed.eddy_energy)
     return (FastDecay(t_drop, t_zero, bus_top, np.maximum(bus_top, v_s), np.where(bus_top > v_s, when, np.inf),
-                      v_end, q_a + np.where(blocked, c * (v_end - v_a), 0.0)),
+                      v_end, q_a + np.where(blocked, c * (v_end - v_a), 0.0), loss),
             (b_fed, at), none, (t_a, i_a, v_a), blocked)
 
 

@@ -362,6 +362,21 @@ def integrals_from(t, b: Bus, i0, v0, nodes: int = 64) -> tuple[np.ndarray, np.n
             0.5 * t * np.sum(w * ii * ii, axis=-1))
 
 
+def eddy_loss_from(t, b: Bus, i0, v0, nodes: int = 64) -> np.ndarray:
+    """J the eddy resistance takes over ``[0, t]`` s from ``(i0, v0)`` (as
+    :func:`integrals_from`; ``b`` with an eddy term): ``R_e int (i_m - i_t)^2 dt``, ``i_t``
+    the terminal current, by ``nodes``-point Gauss-Legendre quadrature of the closed form
+    (as :func:`integrals_from`'s square)."""
+    shape = np.broadcast_shapes(np.shape(t), b.i_ss.shape, np.shape(i0), np.shape(v0))
+    t, i0, v0 = (np.broadcast_to(np.asarray(a, float), shape) for a in (t, i0, v0))
+    x, w = _gauss(nodes)
+    s = 0.5 * t[..., None] * (x + 1.0)
+    wide = _expand(b)
+    i_m, v = state_from(s, wide, i0[..., None], v0[..., None])
+    d = i_m - terminal(i_m, v, wide)
+    return 0.5 * t * np.sum(w * d * d, axis=-1) / b.g_e
+
+
 @functools.lru_cache(maxsize=8)
 def _gauss(nodes: int) -> tuple[np.ndarray, np.ndarray]:
     """Gauss-Legendre nodes and weights on [-1, 1] (numpy's ``leggauss``, computed once:

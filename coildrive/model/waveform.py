@@ -602,7 +602,9 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     the lowest current A and the start of the last on-time s. It needs the armature
     seated at the end of the peak and the hold never below the stay current (else
     ``ValueError``: a hold switched by thresholds with the armature in flight is not
-    modelled), and takes no eddy term, full bridge or mixed decay.
+    modelled), and takes no eddy term or mixed decay. On a full bridge its on-times are
+    Q1 + Q4 and its off-times the slow decay (the hold's loop), the release the fast one
+    (on the drooping bus riding it, :func:`_bus_release`).
     """
     from .armature import params_from_loop, time_bound
     from .armature_sim import simulate
@@ -673,9 +675,9 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     schedule += release_segments(t_off)
     released = (lambda r: r.t >= t_off and r.state == "open" and not r.live)
     tr = None
-    if hold is not None and (p.eddy is not None or bridge or mixed is not None or peak_time <= 0):
-        raise ValueError("a hold switched by thresholds with an [armature] takes no eddy term, "
-                         "full bridge or mixed decay, and needs a peak")
+    if hold is not None and (p.eddy is not None or mixed is not None or peak_time <= 0):
+        raise ValueError("a hold switched by thresholds with an [armature] takes no eddy term "
+                         "or mixed decay, and needs a peak")
     if peak_time > 0 and p.eddy is None:
         # Fast path: seated at the end of the peak and the hold current never below the
         # stay current -- then the hold is the closed-form PWM of the seated coil (with
