@@ -750,6 +750,8 @@ class FirmwareDevice(LineOutput):
             self.trace.append((t0, float(np.mean(np.where(x < s, first(x), second(x)))), self._state))
         fl.settle(bool(new >> 24 & 1))
         self._t = t0 + T
+        self._take_frames()
+        return T
 
     def _step_run(self, t0: float) -> float:
         """One PWM period while the armature's release run into the drooping bus lasts: its
