@@ -2,8 +2,9 @@
 eddy-current term: the irrigation valve of tests/test_latch_bridge_droop.py (0.8 ohm onto
 1000 uF) with its 15 mH replaced by the invented
 saturating curve of tests/test_latch_flux.py, with an invented 50 ohm eddy resistance
-across its 15 mH, or both, on a supply that takes current back; the eddy term (linear or on
-the curve) also on one that cannot (a diode in its feed).
+across its 15 mH, or both, on a supply that takes current back; each also on one that cannot (a diode in its
+feed; the curve alone's run into the capacitor is stepped in the falling current and read
+in time, :func:`coildrive.model.bridge.flux_pump_trace`).
 
 References, written afresh here with scipy's ``solve_ivp`` (DOP853, rtol 1e-11), each
 curve scipy's own ``PchipInterpolator`` through the file's table (Fritsch & Carlson 1980)
@@ -44,7 +45,8 @@ VARIANTS = {"curve": (_table(), None, 1e-5, "curve", True),
             "curve-eddy": (_table() + f'eddy_resistance = "{R_E:g} ohm"\n', R_E, 1e-5, "curve", True),
             "eddy-no-sink": (f'inductance = "15 mH"\neddy_resistance = "{R_E:g} ohm"\n', R_E, 1e-6, "linear",
                              False),
-            "curve-eddy-no-sink": (_table() + f'eddy_resistance = "{R_E:g} ohm"\n', R_E, 1e-5, "curve", False)}
+            "curve-eddy-no-sink": (_table() + f'eddy_resistance = "{R_E:g} ohm"\n', R_E, 1e-5, "curve", False),
+            "curve-no-sink": (_table(), None, 1e-5, "curve", False)}
 
 
 @pytest.fixture(scope="module", params=list(VARIANTS))
@@ -169,3 +171,8 @@ def test_simulate_check_and_the_device(bridge, tmp_path):
         i, bus = flux_bus_decay.trace(t, rel.inductance, i0, 12.0, 12.0, R_S, C, r_off, v_d, sink=False)
         assert np.allclose(i, _decay.at, rtol=10 * tol, atol=1e-7), "the capacitor alone vs solve_ivp"
         assert float(np.max(bus)) <= top * (1 + 1e-9) and float(bus[-1]) > 12.0 + 0.1
+        # the trace ends where the design's figures do (plumbing: the same run)
+        fd = flux_bus_decay.fast_decays(rel.inductance, i0, [12.0], 0.0, 12.0, R_S, C, r_off, v_d, sink=False)[0]
+        i_end, bus_end = flux_bus_decay.trace(np.array([float(fd.zero_time)]), rel.inductance, i0, 12.0, 12.0,
+                                              R_S, C, r_off, v_d, sink=False)
+        assert i_end[0] <= 1e-6 * i0 and bus_end[0] == pytest.approx(float(fd.bus_at_zero), rel=1e-9)
