@@ -1431,9 +1431,11 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     energy, :func:`coildrive.model.bus_decay.no_sink_energy_top`). A latching coil
     on one switch, with a moving armature too (the set pulse's seat run carries the
     capacitor, linear or on its two curves, an eddy term too:
-    :func:`coildrive.design.latch.seat_run`), or on a full bridge with a linear coil or an
-    eddy term (linear or on a curve), a curve without one on a supply that sinks (each
-    pulse's fast decay into the bus: :func:`coildrive.design.latch.bus_decays`). Any hold
+    :func:`coildrive.design.latch.seat_run`), or on a full bridge with a linear coil, a
+    flux-linkage curve or an eddy term (linear or on a curve), on a supply that sinks or
+    not (each pulse's fast decay into the bus: :func:`coildrive.design.latch.bus_decays`;
+    a curve's run into the capacitor alone traced in time by
+    :func:`coildrive.model.bridge.flux_pump_trace`). Any hold
     (the droop is the peak's; a regulated hold takes it out of the hold) and any freewheel
     path (a clamp's release, which draws from the bus, is computed on the undrooped bus:
     the safe side). A moving armature: a linear coil or its open and seated curves (an
@@ -1448,19 +1450,11 @@ def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
     at the terminal current's zero: :mod:`coildrive.model.armature_bus_release`)."""
     if not supply.droops:
         return
-    why = None
     if switch.topology == "full_bridge" and hold.fast_fraction > 0 and armature is not None:
-        key, why = "hold.fast_fraction", "a full bridge's mixed-decay hold with an [armature]"
-    elif (switch.topology == "full_bridge" and hold.mode == "latch" and not supply.sink
-          and coil.flux_current and not coil.eddy_resistance):
-        key, why = "supply.sink", ("a latching coil on a full bridge with a flux-linkage curve (no eddy-current "
-                                   "term) on a supply that cannot sink (the fast decay's trace into the "
-                                   "capacitor alone for simulate and the bench is not built; give sink = true)")
-    if why is not None:
-        raise InputError(source, key, f"the drooping bus (supply.source_resistance) is not modelled with "
-                         f"{why}: expected source_resistance left out, or one switch (a full bridge: "
-                         "a slow-decay peak-and-hold or a mixed decay without an [armature]; a latching coil "
-                         "on a full bridge: a linear coil or an eddy term, or on a supply that sinks a curve too)")
+        raise InputError(source, "hold.fast_fraction", "the drooping bus (supply.source_resistance) is not "
+                         "modelled with a full bridge's mixed-decay hold with an [armature]: expected "
+                         "source_resistance left out, or one switch (a full bridge: a slow-decay "
+                         "peak-and-hold, a mixed decay without an [armature] or a latching coil)")
 
 
 def _read_boost(s: "_Section") -> tuple:

@@ -133,29 +133,6 @@ def test_release_and_buses_match_solve_ivp(tmp_path, hold, sink):
     assert not names["supply_droop"]["ok"] and f"{sup['lowest_bus_v']:.4g} V" in names["supply_droop"]["detail"]
 
 
-def test_what_a_bridge_on_the_drooping_bus_still_refuses_is_one_line(tmp_path):
-    # a latching coil's pulses on a bridge with a flux-linkage curve and no eddy term on a
-    # supply that cannot sink (a linear one, an eddy term, or a curve on a supply that sinks
-    # is designed: tests/test_latch_bridge_droop.py, test_latch_bridge_droop_curves.py; a
-    # mixed-decay hold on a supply that sinks or not, with a curve or an eddy term too:
-    # tests/test_bridge_mixed_droop.py, test_bridge_mixed_no_sink.py,
-    # test_bridge_mixed_droop_coils.py): not modelled on the drooping bus, one line, exit 2
-    from conftest import EXAMPLES
-    from test_latch_flux import _table
-
-    text = (EXAMPLES / "latching" / "irrigation-valve-bridge-12v.toml").read_text()
-    old = "sink = true                  # the battery takes the returned energy back\n"
-    assert old in text
-    path = tmp_path / "latch.toml"
-    path.write_text(text.replace(old, 'sink = false\nsource_resistance = "0.3 ohm"\ncapacitance = "1000 uF"\n')
-                    .replace('inductance = "15 mH"\n', _table()))
-    key = "supply.sink"
-    r = run_cli("design", str(path))
-    lines = r.stderr.strip().splitlines()
-    assert r.returncode == 2 and len(lines) == 1, r.stderr
-    assert key in lines[0] and "drooping bus" in lines[0] and str(path) in lines[0], lines[0]
-
-
 @pytest.mark.ngspice
 def test_hysteretic_actuation_on_the_drooping_bus_matches_ngspice(tmp_path):
     """ngspice runs a whole actuation of the designed hysteretic hold: Q1 forced on for the

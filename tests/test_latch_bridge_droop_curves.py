@@ -2,8 +2,9 @@
 eddy-current term: the irrigation valve of tests/test_latch_bridge_droop.py (0.8 ohm onto
 1000 uF) with its 15 mH replaced by the invented
 saturating curve of tests/test_latch_flux.py, with an invented 50 ohm eddy resistance
-across its 15 mH, or both, on a supply that takes current back; the eddy term (linear or on
-the curve) also on one that cannot (a diode in its feed).
+across its 15 mH, or both, on a supply that takes current back; each also on one that cannot (a diode in its
+feed; the curve alone's run into the capacitor is stepped in the falling current and read
+in time, :func:`coildrive.model.bridge.flux_pump_trace`).
 
 References, written afresh here with scipy's ``solve_ivp`` (DOP853, rtol 1e-11), each
 curve scipy's own ``PchipInterpolator`` through the file's table (Fritsch & Carlson 1980)
@@ -44,7 +45,8 @@ VARIANTS = {"curve": (_table(), None, 1e-5, "curve", True),
             "curve-eddy": (_table() + f'eddy_resistance = "{R_E:g} ohm"\n', R_E, 1e-5, "curve", True),
             "eddy-no-sink": (f'inductance = "15 mH"\neddy_resistance = "{R_E:g} ohm"\n', R_E, 1e-6, "linear",
                              False),
-            "curve-eddy-no-sink": (_table() + f'eddy_resistance = "{R_E:g} ohm"\n', R_E, 1e-5, "curve", False)}
+            "curve-eddy-no-sink": (_table() + f'eddy_resistance = "{R_E:g} ohm"\n', R_E, 1e-5, "curve", False),
+            "curve-no-sink": (_table(), None, 1e-5, "curve", False)}
 
 
 @pytest.fixture(scope="module", params=list(VARIANTS))
@@ -67,19 +69,19 @@ class Coil:
         return self.l if self.p is None else self.lf * float(self.p(max(i, 0.0), 1))
 
 
-def _pulse(coil: Coil, r_e, v_s, r, t, bus: bool):
+def _pulse(coil: Coil, r_e, v_s, r, t, bus: bool, r_s=R_S):
     """The magnetising current at ``t`` s and the bus then, switched on from a full capacitor
-    (``bus``) or a stiff bus at ``v_s`` V."""
+    (``bus``; behind ``r_s`` ohm) or a stiff bus at ``v_s`` V."""
     def rhs(_t, y):
         u, i_m = y
         i = i_m if r_e is None else (u + r_e * i_m) / (r + r_e)
         v_m = u - r * i                         # the branch's voltage
-        return [((v_s - u) / R_S - i) / C if bus else 0.0, v_m / coil.ld(i_m)]
+        return [((v_s - u) / r_s - i) / C if bus else 0.0, v_m / coil.ld(i_m)]
     sol = solve_ivp(rhs, (0.0, t), [v_s, 0.0], **OPTS)
     return float(sol.y[1, -1]), float(sol.y[0, -1])
 
 
-def _decay(coil: Coil, r_e, v_s, r, v_d, i0, u0, sink: bool, t_eval=None):
+def _decay(coil: Coil, r_e, v_s, r, v_d, i0, u0, sink: bool, t_eval=None, r_s=R_S):
     """The fast decay into the bus to the terminal current's zero: ``(zero time s, highest
     bus over it V)``; the bus at the zero as ``_decay.bus_zero``, the terminal current at
     ``t_eval`` as ``_decay.at``. Without a ``sink`` the feed is an ideal one-way diode: its
@@ -89,7 +91,7 @@ def _decay(coil: Coil, r_e, v_s, r, v_d, i0, u0, sink: bool, t_eval=None):
         return i_m if r_e is None else (r_e * i_m - u - 2 * v_d) / (r + r_e)
 
     def feed(u):
-        return (v_s - u) / R_S if sink or u < v_s else 0.0
+        return (v_s - u) / r_s if sink or u < v_s else 0.0
 
     def rhs(_t, y):
         i_m, u = y
@@ -169,3 +171,35 @@ def test_simulate_check_and_the_device(bridge, tmp_path):
         i, bus = flux_bus_decay.trace(t, rel.inductance, i0, 12.0, 12.0, R_S, C, r_off, v_d, sink=False)
         assert np.allclose(i, _decay.at, rtol=10 * tol, atol=1e-7), "the capacitor alone vs solve_ivp"
         assert float(np.max(bus)) <= top * (1 + 1e-9) and float(bus[-1]) > 12.0 + 0.1
+        # the trace ends where the design's figures do (plumbing: the same run)
+        fd = flux_bus_decay.fast_decays(rel.inductance, i0, [12.0], 0.0, 12.0, R_S, C, r_off, v_d, sink=False)[0]
+        i_end, bus_end = flux_bus_decay.trace(np.array([float(fd.zero_time)]), rel.inductance, i0, 12.0, 12.0,
+                                              R_S, C, r_off, v_d, sink=False)
+        assert i_end[0] <= 1e-6 * i0 and bus_end[0] == pytest.approx(float(fd.bus_at_zero), rel=1e-9)
+
+
+def test_simulate_runs_the_curve_into_the_capacitor_alone(tmp_path):
+    """The curve without an eddy term on a supply that cannot sink, fed through 0.2 ohm (the
+    bus at the pulse's end close enough to ``V_s`` that the returned current lifts it past:
+    the feed blocks and the rest runs into the capacitor alone,
+    :func:`coildrive.model.bridge.flux_pump_trace`): ``coildrive simulate``'s decay current
+    and the bus at the zero against solve_ivp (the one-way feed an event)."""
+    r_s = 0.2
+    path = droop_bridge(tmp_path, False)
+    path.write_text(path.read_text().replace('inductance = "15 mH"\n', _table())
+                    .replace(f'source_resistance = "{R_S} ohm"', f'source_resistance = "{r_s} ohm"'))
+    _, drive, d = designed(path)
+    assert d.ok, [(c.name, c.detail) for c in d.checks if not c.ok]
+    data = simulated(path, tmp_path)
+    p = d.latch.pulses[0]
+    r_on, r_off, _, v_d = _loop(drive, 20.0, 1.0, 1.0)
+    coil = Coil("curve", 0.015, 1.0)
+    i0, u0 = _pulse(coil, None, 12.0, r_on, p.time_s, bus=True, r_s=r_s)
+    t_zero, top = _decay(coil, None, 12.0, r_off, v_d, i0, u0, False, r_s=r_s)
+    assert top > 12.0 + 0.1, "precondition: the feed blocks and the capacitor alone takes the rest"
+    k = (data["time_s"] > p.time_s) & (data["time_s"] < p.time_s + 0.9 * t_zero)
+    _decay(coil, None, 12.0, r_off, v_d, i0, u0, False, t_eval=data["time_s"][k] - p.time_s, r_s=r_s)
+    assert np.allclose(data["current_a"][k], _decay.at, rtol=1e-4, atol=1e-7), "the decay vs solve_ivp"
+    end = int(np.flatnonzero(data["time_s"] <= p.time_s + t_zero * (1 + 1e-6))[-1])
+    assert data["current_a"][end] == 0.0
+    assert data["q1_v"][end] == pytest.approx(_decay.bus_zero, rel=1e-4), "the bus at the zero vs solve_ivp"

@@ -43,6 +43,7 @@ from . import flux
 from .eddy import EddyCoil
 from .flux import FluxCoil
 from . import rlc
+from .flux_bus import hermite
 from .rl import decay_integrals, decay_time
 
 
@@ -200,6 +201,17 @@ def flux_pump_up(i0, v1, capacitance, r_off, coil: FluxCoil, v_diode, steps: int
     400 steps within 1e-6 of 8,000 (tests/test_flux_bridge.py); a straight-line curve
     gives the series RLC's closed form above to 1e-12. ngspice with a flux-controlled
     inductor checks it in tests/test_reference_ngspice_bridge.py."""
+    v1 = np.asarray(v1, float)
+    for i, v, t in _flux_pump_steps(i0, v1, capacitance, r_off, coil, v_diode, steps, i_end):
+        pass
+    c = np.asarray(capacitance, float)
+    q = c * (v - v1)
+    return PumpUp(v, v - v1, 0.5 * c * (v**2 - v1**2), t, q)
+
+
+def _flux_pump_steps(i0, v1, capacitance, r_off, coil: FluxCoil, v_diode, steps, i_end=0.0):
+    """:func:`flux_pump_up`'s Runge-Kutta steps: ``(i A, v V, t s)`` at the start and after
+    each step (``steps + 1`` knots)."""
     i0, v1, c, r, vd, s, i_end = np.broadcast_arrays(*(np.asarray(x, float) for x in
                                                        (i0, v1, capacitance, r_off, v_diode, coil.scale, i_end)))
     curve = coil.curve
@@ -212,6 +224,7 @@ def flux_pump_up(i0, v1, capacitance, r_off, coil: FluxCoil, v_diode, steps: int
 
     v = v1.copy()
     t = np.zeros_like(v)
+    yield i0, v, t
     for k in range(steps):
         i = i0 - k * h
         a_v, a_t = slopes(i, v)
@@ -220,8 +233,30 @@ def flux_pump_up(i0, v1, capacitance, r_off, coil: FluxCoil, v_diode, steps: int
         d_v, d_t = slopes(np.maximum(i - h, i_end), v + h * c_v)
         v = v + h / 6.0 * (a_v + 2.0 * b_v + 2.0 * c_v + d_v)
         t = t + h / 6.0 * (a_t + 2.0 * b_t + 2.0 * c_t + d_t)
-    q = c * (v - v1)
-    return PumpUp(v, v - v1, 0.5 * c * (v**2 - v1**2), t, q)
+        yield np.maximum(i0 - (k + 1) * h, i_end), v, t
+
+
+def flux_pump_trace(t, i0, v1, capacitance, r_off, coil: FluxCoil, v_diode, steps: int = PUMP_STEPS):
+    """The current (A) and the bus (V) ``t`` s (an array) into :func:`flux_pump_up`'s run of
+    one point (scalars): its knots, stepped in the falling current, carry the time as well
+    (``dt/di``'s quadrature), so between two knots the state is the cubic Hermite
+    interpolant in time with the circuit's own rates at both ends, ``di/dt = -(v + 2 V_d +
+    R i)/L_d(i)`` and ``dv/dt = i/C``. The run's zero time (:attr:`PumpUp.zero_time`) is
+    the last knot's, so the trace ends where the design's figure does; past it the current
+    is 0 and the bus stays at ``v2``."""
+    knots = list(_flux_pump_steps(i0, v1, capacitance, r_off, coil, v_diode, steps))
+    ik, vk, tk = (np.array([float(np.ravel(x)[0]) for x in col]) for col in zip(*knots))
+    c, r, vd = (float(np.ravel(x)[0]) for x in (capacitance, r_off, v_diode))
+    di = -(vk + 2.0 * vd + r * ik) / (float(np.ravel(coil.scale)[0]) * coil.curve.incremental(ik))
+    dv = ik / c
+    t = np.asarray(t, float)
+    k = np.clip(np.searchsorted(tk, t, side="right") - 1, 0, tk.size - 2)
+    h = tk[k + 1] - tk[k]
+    s = np.clip((t - tk[k]) / np.where(h > 0, h, 1.0), 0.0, 1.0)
+    i = hermite(ik[k], ik[k + 1], di[k] * h, di[k + 1] * h, s)
+    v = hermite(vk[k], vk[k + 1], dv[k] * h, dv[k + 1] * h, s)
+    past = t >= tk[-1]
+    return np.where(past, 0.0, np.maximum(i, 0.0)), np.where(past, vk[-1], v)
 
 
 def _eddy_pump_up(i0, v1, capacitance, r_off, coil: EddyCoil, v_diode, steps: int = PUMP_STEPS) -> PumpUp:

@@ -53,7 +53,7 @@ import dataclasses
 import numpy as np
 
 from . import bus_decay, flux, flux_bus
-from .bridge import flux_pump_up
+from .bridge import flux_pump_trace, flux_pump_up
 from .bus_decay import FastDecay
 from .eddy import EddyCoil
 from .flux import FluxCoil
@@ -299,10 +299,11 @@ def trace(t, coil, i0, v0, v_s, r_s, c, r, v_d, sink: bool = True):
     linear coil's closed form (:func:`coildrive.model.bus_decay.trace`), with an eddy term
     ``eddy_decay``'s (:func:`coildrive.model.bus_decay.eddy_trace`), a curve's stepped run
     read by its Hermite cubics; a supply that cannot sink too (the source's circuit until
-    the feed blocks, then the capacitor alone's), except a curve without an eddy term, whose
-    run into the capacitor alone is stepped in the falling current
-    (:func:`coildrive.model.bridge.flux_pump_up`) with no time record (``ValueError``).
-    Past the zero the current is 0 and the bus is left where it was (the caller ends there)."""
+    the feed blocks, then the capacitor alone's; a curve without an eddy term there is
+    :func:`decay_no_sink`'s own run stepped in the falling current, read in time by
+    :func:`coildrive.model.bridge.flux_pump_trace`, so the trace ends at the design's zero
+    time). Past the zero the current is 0 and the bus is left where it was (the caller
+    ends there)."""
     branch, r_e = _split(coil)
     if not isinstance(branch, FluxCoil) and r_e is None:
         return bus_decay.trace(t, i0, v0, v_s, r_s, c, r, branch, v_d, sink=sink)
@@ -310,8 +311,6 @@ def trace(t, coil, i0, v0, v_s, r_s, c, r, v_d, sink: bool = True):
     r_e = None if r_e is None else float(np.ravel(r_e)[0])
     if not isinstance(branch, FluxCoil):
         return bus_decay.eddy_trace(t, i0, v0, v_s, r_s, c, r, float(np.ravel(branch)[0]), v_d, r_e, sink=sink)
-    if not sink and r_e is None:
-        raise ValueError("no trace of a curve's fast decay into the capacitor alone (a supply that cannot sink)")
     t = np.asarray(t, float)
     one = branch.with_scale(np.asarray(float(np.ravel(branch.scale)[0])))
     fed, rec, fb = _decay(i0, np.minimum(v0, v_s), np.asarray(0.0), v_s, r_s, c, r, one, v_d, r_e)
@@ -327,9 +326,12 @@ def trace(t, coil, i0, v0, v_s, r_s, c, r, v_d, sink: bool = True):
     if blocked:
         i_a = i0 if v0 >= v_s else flux_bus.state(np.asarray(t_a), fb)[0]
         v_a = np.maximum(v0, v_s)
+        late = t > t_a
+        if r_e is None:   # decay_no_sink's run in the falling current, read in time
+            i_n, v_n = flux_pump_trace(np.maximum(t - t_a, 0.0), i_a, v_a, c, r, one, v_d)
+            return np.where(late, i_n, np.maximum(i, 0.0)), np.where(late, v_n, -u - 2.0 * v_d)
         _, _, alone = _decay(np.asarray(i_a, float), v_a, np.asarray(0.0), v_s, np.asarray(np.inf), c, r, one, v_d,
                              r_e)
-        late = t > t_a
         i_n, u_n = flux_bus.state(np.maximum(t - t_a, 0.0), alone)
         i, u = np.where(late, terminal(i_n, u_n, alone), i), np.where(late, u_n, u)
     return np.maximum(i, 0.0), -u - 2.0 * v_d
