@@ -55,3 +55,16 @@ def test_bound_covers_solve_ivp():
         assert got[2] < 1.2 * float(idle.bus_max[k]), (k, got[2], float(idle.bus_max[k]))
     assert blocked >= 2   # the feed's block is exercised
 
+
+
+def test_a_bus_pulled_to_the_diodes_is_refused_in_one_line(tmp_path):
+    """Behind 40 ohm the converter's 5 W and the coil pull the main bus's floor to the
+    bridge's body diodes: the bound's lowest bus gives the current no push to zero, so the
+    design refuses in one line naming ``supply.source_resistance`` (exit 2)."""
+    from conftest import run_cli
+    from test_boost_bridge_droop import _drooping
+    from test_boost_bridge_droop_coils import _coil
+
+    out = run_cli("design", str(_coil(_drooping(tmp_path, "40 ohm", "1 mF", sink=False), "curve")))
+    assert out.returncode == 2 and "supply.source_resistance" in out.stderr and "no bound" in out.stderr, out.stderr
+    assert len(out.stderr.strip().splitlines()) == 1

@@ -17,6 +17,7 @@ import math
 import numpy as np
 
 from ..config import Drive
+from ..errors import InputError
 from ..model import bus_decay, flux_bus_decay
 from ..model.circuit import full_bridge
 from ..model.eddy import EddyCoil, stored_energy
@@ -175,6 +176,11 @@ def decays(drive: Drive, res, i0, peak_time, peak_end) -> list[bus_decay.FastDec
     if bound:
         # the feed blocking at V_s with the converter's drain: the slowest release (against
         # the fixed lowest bus) and the highest bus (the energy argument), bounded
+        if np.any(np.minimum(lo, lp.v_on - s.source_resistance * i_conv) + 2.0 * lp.diode(drive) <= 0.0):
+            raise InputError(drive.source, "supply.source_resistance", (
+                "the boost converter's draw and the coil pull the main bus down to the bridge's body "
+                "diodes: a curve's release there has no bound, expected a lower source resistance or "
+                "boost_power"))
         runs += [flux_bus_decay.drawn_no_sink_bound(i0, v0, drive.release.current, lp.v_on, i_conv,
                                                     s.source_resistance, s.capacitance, lp.r_off, coil,
                                                     lp.diode(drive)) for v0 in starts]
