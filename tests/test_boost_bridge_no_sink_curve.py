@@ -14,7 +14,8 @@ falls). References:
   from buses where the feed blocks and re-feeds and where the drain keeps it feeding;
 * the design end to end (tests/test_boost_bridge_droop_coils.py ``curve-no-sink``): the
   release takes the drawing converter's bound (without it the release is shorter); an
-  eddy term stays refused in one line there.
+  eddy term stays refused in one line there; here, a bus pulled to the bridge's diodes is
+  refused in one line, and (plumbing) the emulated capture passes check.
 """
 
 from __future__ import annotations
@@ -68,3 +69,14 @@ def test_a_bus_pulled_to_the_diodes_is_refused_in_one_line(tmp_path):
     out = run_cli("design", str(_coil(_drooping(tmp_path, "40 ohm", "1 mF", sink=False), "curve")))
     assert out.returncode == 2 and "supply.source_resistance" in out.stderr and "no bound" in out.stderr, out.stderr
     assert len(out.stderr.strip().splitlines()) == 1
+
+
+def test_emulated_capture_passes_check(tmp_path):
+    """Plumbing (the emulator shares the design's physics): behind 2 mohm the curve's
+    boosted bridge on a supply that cannot sink designs and its emulated capture passes
+    check, a coil 40 % over its resistance fails it."""
+    from test_boost_bridge_droop import _drooping
+    from test_boost_bridge_droop_coils import _coil
+    from test_boost_high_side import emulated_check_passes
+
+    emulated_check_passes(tmp_path, _coil(_drooping(tmp_path, "2 mohm", "1 mF", sink=False), "curve"))
