@@ -1515,8 +1515,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     high-side switch, a stiff or a drooping main supply (the main bus feeds the hold from
     the hand-over: :func:`coildrive.design.supply.handover_bus`, a linear coil, a curve or
     an eddy term; on a full bridge every turn-off's fast decay returns into it, the boost
-    converter idle or drawing: :mod:`coildrive.design.bridge_bus`, a linear coil, or a
-    curve or an eddy term on a supply that sinks; with a moving armature, a linear coil on
+    converter idle or drawing: :mod:`coildrive.design.bridge_bus`, a linear coil or a curve,
+    or an eddy term on a supply that sinks; with a moving armature, a linear coil on
     one switch without a clamp, the hold's flight on it), a PWM
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
     mode), a peak that ends at its threshold. A moving armature
@@ -1544,11 +1544,11 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "(e.g. 0.85)")
     why = None
     if (supply.droops and switch.topology == "full_bridge" and not supply.sink
-            and (coil.flux_current or coil.eddy_resistance)):
-        key, why = "supply.sink", ("a drooping main supply that cannot sink on a full bridge with a "
-                                   "flux-linkage curve or an eddy-current term (the release into the "
-                                   "drooping bus with the converter drawing and the feed blocking is a "
-                                   "linear coil's)")
+            and coil.eddy_resistance):
+        key, why = "supply.sink", ("a drooping main supply that cannot sink on a full bridge with an "
+                                   "eddy-current term (the release into the drooping bus with the "
+                                   "converter drawing and the feed blocking is a linear coil's or a "
+                                   "curve's without one)")
     elif hold.mode == "latch" and _boosted_latch_refusal(coil, switch, supply, armature, latch):
         key, why = _boosted_latch_refusal(coil, switch, supply, armature, latch)
     elif hold.mode == "latch" and freewheel.type == "clamp":
@@ -1582,7 +1582,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "high-side switch or a "
                          "full bridge, a "
                          "diode/zener/resistor freewheel (split decay too) or a clamp, a stiff "
-                         "main supply (or a drooping one; on a full bridge a linear coil, or a curve or an "
+                         "main supply (or a drooping one; on a full bridge a linear coil or a curve, or an "
                          "eddy term on a supply that sinks; with [armature] a linear coil on one switch, no "
                          "clamp), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "

@@ -13,7 +13,9 @@ References:
   ``_reference``, their ``i_c``): the times, the buses and the charge to 1e-5, from buses
   below, at and above ``V_s - R_s I_c``;
 * the design end to end: the release takes the drawing converter (without it the
-  release is shorter), a supply that cannot sink stays refused in one line.
+  release is shorter), a curve on a supply that cannot sink too (its drawing converter's
+  decay bounded: tests/test_boost_bridge_no_sink_curve.py), an eddy term on one that cannot
+  stays refused in one line.
 """
 
 from __future__ import annotations
@@ -67,15 +69,17 @@ def _coil(path, kind):
     return path
 
 
-@pytest.mark.parametrize("kind", ["curve", "eddy"])
-def test_design_end_to_end(tmp_path, kind, monkeypatch):
+@pytest.mark.parametrize("kind, sink", [("curve", True), ("eddy", True), ("curve", False)],
+                         ids=["curve", "eddy", "curve-no-sink"])
+def test_design_end_to_end(tmp_path, kind, sink, monkeypatch):
     """Designs (was refused): the release into the drooping bus takes the converter idle
     and drawing its most -- without the drawing end the release is shorter -- and the
-    switches see the highest bus plus a body diode."""
+    switches see the highest bus plus a body diode. A curve on a supply that cannot sink:
+    the drawing converter's decay bounded (tests/test_boost_bridge_no_sink_curve.py)."""
     from coildrive.config import load_drive
     from coildrive.design import bridge_bus, design
 
-    path = _coil(_drooping(tmp_path, "0.5 ohm", "1 mF"), kind)
+    path = _coil(_drooping(tmp_path, "0.5 ohm", "1 mF", sink=sink), kind)
     r = run_cli("design", str(path), "--json")
     assert r.returncode in (0, 1), r.stderr
     d = json.loads(r.stdout)

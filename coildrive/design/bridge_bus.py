@@ -6,7 +6,8 @@ cannot sink blocks at the source's voltage and the rest charges the capacitor al
 flux-linkage curve's, with or without an eddy term, :mod:`coildrive.model.flux_bus_decay`,
 stepped). After a boosted peak the main bus sits at the source through the peak and feeds
 the hold and the boost converter from the hand-over: the release takes the converter idle
-and drawing its most (:func:`coildrive.model.bus_decay.decay_drawn`)."""
+and drawing its most (:func:`coildrive.model.bus_decay.decay_drawn`; a curve's on a supply
+that cannot sink bounded, :func:`coildrive.model.flux_bus_decay.drawn_no_sink_bound`)."""
 
 from __future__ import annotations
 
@@ -16,6 +17,7 @@ import math
 import numpy as np
 
 from ..config import Drive
+from ..errors import InputError
 from ..model import bus_decay, flux_bus_decay
 from ..model.circuit import full_bridge
 from ..model.eddy import EddyCoil, stored_energy
@@ -146,7 +148,10 @@ def decays(drive: Drive, res, i0, peak_time, peak_end) -> list[bus_decay.FastDec
     converter may be idle or drawing its most (:func:`converter_draw`, ``I_c``): a linear
     coil's :func:`coildrive.model.bus_decay.decay_drawn`; a curve's or an eddy term's on a
     supply that sinks the same decays with the source ``V_s - R_s I_c`` (Thevenin: ``C
-    dv/dt = i + (V_s - v)/R_s - I_c = i + (V_s - R_s I_c - v)/R_s``, exact)."""
+    dv/dt = i + (V_s - v)/R_s - I_c = i + (V_s - R_s I_c - v)/R_s``, exact); a curve's (no
+    eddy term) on a supply that cannot sink, the feed blocking at ``V_s`` and the drain on,
+    bounded: :func:`coildrive.model.flux_bus_decay.drawn_no_sink_bound` (the release against
+    the fixed lowest bus, the highest bus by the energy argument)."""
     s = drive.supply
     lp = release_loop(res)
     lo, hi = bus_range(drive, res, peak_time, peak_end)
@@ -154,10 +159,12 @@ def decays(drive: Drive, res, i0, peak_time, peak_end) -> list[bus_decay.FastDec
     coil = lp.inductance
     i_conv = converter_draw(drive, res, peak_end)
     plain = not isinstance(coil, (EddyCoil, FluxCoil))
+    # a curve (no eddy term) on a supply that cannot sink: the drawing converter's bound below
+    bound = i_conv is not None and isinstance(coil, FluxCoil) and not s.sink
     # the sources the decays run against: the idle converter's, and the drawing one's (a
-    # curve or an eddy term: a supply that sinks, config; a plain linear coil's drawing
+    # curve or an eddy term on a supply that sinks; a plain linear coil's drawing
     # converter is decay_drawn's below, the feed's blocking included)
-    sources = [lp.v_on] + ([] if i_conv is None or plain else [lp.v_on - s.source_resistance * i_conv])
+    sources = [lp.v_on] + ([] if i_conv is None or plain or bound else [lp.v_on - s.source_resistance * i_conv])
     runs = [run for v_s in sources
             for run in flux_bus_decay.fast_decays(coil, i0, starts, drive.release.current, v_s, s.source_resistance,
                                                   s.capacitance, lp.r_off, lp.diode(drive), s.sink)]
@@ -166,6 +173,17 @@ def decays(drive: Drive, res, i0, peak_time, peak_end) -> list[bus_decay.FastDec
         # state is affine in its current too, so both ends from every starting bus
         runs += [bus_decay.decay_drawn(i0, v0, drive.release.current, lp.v_on, i_conv, s.source_resistance,
                                        s.capacitance, lp.r_off, coil, lp.diode(drive), s.sink) for v0 in starts]
+    if bound:
+        # the feed blocking at V_s with the converter's drain: the slowest release (against
+        # the fixed lowest bus) and the highest bus (the energy argument), bounded
+        if np.any(np.minimum(lo, lp.v_on - s.source_resistance * i_conv) + 2.0 * lp.diode(drive) <= 0.0):
+            raise InputError(drive.source, "supply.source_resistance", (
+                "the boost converter's draw and the coil pull the main bus down to the bridge's body "
+                "diodes: a curve's release there has no bound, expected a lower source resistance or "
+                "boost_power"))
+        runs += [flux_bus_decay.drawn_no_sink_bound(i0, v0, drive.release.current, lp.v_on, i_conv,
+                                                    s.source_resistance, s.capacitance, lp.r_off, coil,
+                                                    lp.diode(drive)) for v0 in starts]
     return runs
 
 

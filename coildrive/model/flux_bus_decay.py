@@ -41,7 +41,9 @@ terminal current) end there. The flux then dies through ``R_e`` alone (``dpsi/dt
 i_m``, the curve's exact quadrature :func:`coildrive.model.flux.time`), so a drop-out
 current below the block current is reached that much later; the bus, cut off from the
 coil, relaxes to ``V_s`` (never above the highest it reached). The run stops once every
-point's terminal current has crossed zero. A supply that cannot sink: :func:`decay_no_sink`.
+point's terminal current has crossed zero. A supply that cannot sink: :func:`decay_no_sink`;
+with a constant current drawn off the bus too (a boost converter), a curve's decay bounded:
+:func:`drawn_no_sink_bound`.
 
 All functions broadcast over numpy arrays; units are A, V, ohm, H, Wb, F, s.
 """
@@ -55,7 +57,7 @@ import numpy as np
 from . import bus_decay, flux, flux_bus
 from .bridge import flux_pump_trace, flux_pump_up
 from .bus_decay import FastDecay
-from .eddy import EddyCoil
+from .eddy import EddyCoil, stored_energy
 from .flux import FluxCoil
 from .supply import terminal
 
@@ -261,6 +263,45 @@ def decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, coil: FluxCoil, v_d, r_e=None)
     when = np.where(blocked, t_zero, fed.bus_max_time)
     return _shaped(FastDecay(t_drop, t_zero, bus_top, np.maximum(bus_top, v_s),
                              np.where(bus_top > v_s, when, np.inf), v_end, q_a + q_b), shape)
+
+
+def drawn_no_sink_bound(i0, v0, i_drop, v_s, i_c, r_s, c, r, coil: FluxCoil, v_d) -> FastDecay:
+    """A bound on :func:`decay_no_sink` with a constant current ``i_c`` A drawn off the bus
+    throughout (a boost converter recharging from the main bus; the linear coil's exact
+    run is :func:`coildrive.model.bus_decay.decay_drawn`), the flux-linkage curve ``coil``
+    (no eddy term), ``v0`` V the starting bus (at or below ``v_s``)::
+
+        dpsi/dt = -(R i + v + 2 V_d)
+        C dv/dt = i + max((V_s - v)/R_s, 0) - i_c        (the feed blocks above V_s)
+
+    * The bus never falls below ``m = min(v0, V_s - R_s i_c)`` (at least ``-2 V_d``, the
+      bridge's body diodes) while the current flows: below ``V_s`` at ``v = m`` the feed
+      brings ``(V_s - m)/R_s >= i_c`` and the coil ``i >= 0``, so ``dv/dt >= 0``; above
+      ``V_s`` it is above ``m`` anyway. So ``|dpsi/dt| >= R i + m + 2 V_d`` at every flux
+      level, the flux falls monotonically and the times to the drop-out current and to
+      zero, and the charge ``int i dt = int i dpsi/|dpsi/dt|``, are at most the decay's
+      against the fixed bus ``m`` (:func:`coildrive.model.flux.integral`, the curve's exact
+      quadrature): the slowest release.
+    * While the bus is above ``V_s`` the feed blocks, so ``1/2 C v^2 + W`` (``W`` the coil's
+      stored energy) only falls (``d/dt = -v i_c - R i^2 - 2 V_d i``); the coil's energy
+      when the bus crosses up through ``V_s`` is at most ``W(i0)`` (the flux only falls):
+      the bus stays below :func:`coildrive.model.bus_decay.no_sink_energy_top` -- the highest
+      bus, its ``bus_top``, ``bus_max`` and ``bus_at_zero`` (``bus_max_time`` ``inf``: a
+      bound has no moment).
+
+    Where ``m + 2 V_d`` is not above 0 the current's zero has no finite bound
+    (``ArithmeticError``). Broadcasts over the points; A, V, ohm, F, s."""
+    i0, v0, i_drop, v_s, i_c, r_s, c, r, v_d = np.broadcast_arrays(
+        *(np.asarray(x, float) for x in (i0, v0, i_drop, v_s, i_c, r_s, c, r, v_d)))
+    m = np.maximum(np.minimum(v0, v_s - r_s * i_c), -2.0 * v_d)
+    if np.any(m + 2.0 * v_d <= 0.0):
+        raise ArithmeticError("the bus may sit at the bridge's diodes: no bound on the fast decay's zero")
+    one = coil.with_scale(np.broadcast_to(np.asarray(coil.scale, float), i0.shape))
+    fixed = -(m + 2.0 * v_d)
+    t_zero, charge = flux.integral(one, i0, np.zeros_like(i0), fixed, r, (0, 1))
+    t_drop = flux.time(one, i0, np.minimum(i_drop, i0), fixed, r)
+    top = bus_decay.no_sink_energy_top(v_s, c, stored_energy(one, i0))
+    return FastDecay(t_drop, t_zero, top, np.maximum(top, v_s), np.full_like(top, np.inf), top, charge)
 
 
 # --------------------------------------------------------------------------- any coil
