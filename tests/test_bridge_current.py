@@ -28,6 +28,7 @@ import math
 import numpy as np
 import pytest
 
+from coil_span import cold_and_settled, corner_at
 from conftest import BOARDS, EXAMPLES, require_tool, run_cli
 from coildrive.config import load_drive
 from coildrive.design import design
@@ -79,14 +80,11 @@ def test_hysteretic_corners_against_the_switching_times(hysteretic):
     assert b["hold_decay"] == "slow" and b["release_decay"] == "fast" and b["returned_per_hold_period_j"] == 0.0
     sw, rs, vd = drive.switch.on_resistance, drive.board.sense.resistance, drive.freewheel.diode_drop
     lo, hi = cm["lower_a"], cm["upper_a"]
-    freqs, returned = [], []
+    returned = []
     for c in d["corners"]:
         r, ell, v = c["resistance_ohm"], c["inductance_h"], c["supply_v"]
         r_on = r + 2 * sw + rs            # Q1 + Q4 and the inline sense resistor
         r_slow = r + 2 * sw + rs          # Q2 + Q4, the inline sense resistor still in the loop
-        t_on = ell / r_on * math.log((v / r_on - lo) / (v / r_on - hi))
-        t_off = ell / r_slow * math.log(hi / lo)   # slow decay: nothing opposes the current
-        freqs.append(1.0 / (t_on + t_off))
         assert lo < c["hold_mean_current_a"] < hi
         assert c["hold_ripple_a"] == pytest.approx(hi - lo, rel=1e-9)
         # the release from the band's top decays fast into the bus through two body diodes
@@ -101,8 +99,21 @@ def test_hysteretic_corners_against_the_switching_times(hysteretic):
         r_c = r * (1 + 0.00393 * (c["ambient_c"] - 20.0)) / (1 + 0.00393 * (c["coil_temp_c"] - 20.0)) + rs
         t_zero_c = ell / r_c * math.log((hi + v_fast / r_c) / (v_fast / r_c))
         returned.append(v * (ell * hi - v_fast * t_zero_c) / r_c)
+    # the switching range over the coil from switched on cold to settled: the slow decay
+    # (nothing opposes the current) is faster the more copper, so a cold coil switches
+    # the slowest and the range's two ends are the span's
+    freqs = []
+    for c in cold_and_settled(d):
+        r, ell, v = c["resistance_ohm"], c["inductance_h"], c["supply_v"]
+        r_on = r + 2 * sw + rs            # Q1 + Q4 and the inline sense resistor
+        r_slow = r + 2 * sw + rs          # Q2 + Q4, the inline sense resistor still in the loop
+        t_on = ell / r_on * math.log((v / r_on - lo) / (v / r_on - hi))
+        t_off = ell / r_slow * math.log(hi / lo)   # slow decay: nothing opposes the current
+        freqs.append(1.0 / (t_on + t_off))
     assert cm["min_frequency_hz"] == pytest.approx(min(freqs), rel=1e-9)
     assert cm["max_frequency_hz"] == pytest.approx(max(freqs), rel=1e-9)
+    assert min(freqs) == pytest.approx(min(freqs[len(freqs) // 2:]), rel=1e-12), "the slowest: a cold coil"
+    assert cm["allowed_min_frequency_hz"] <= cm["min_frequency_hz"], "a cold coil inside the range too"
     # the energy back into the bus per release (from the band's top), the corner that has the most
     assert b["returned_per_release_j"] == pytest.approx(max(returned), rel=1e-9)
     assert d["hold"]["min_mean_current_a"] >= drive.hold.current
@@ -136,7 +147,10 @@ def test_off_time_on_the_slow_path_against_solve_ivp(tmp_path):
     corners = {c["label"]: c for c in d["corners"]}
     peak, t_off = cm["upper_a"], cm["off_time_s"]
     for which in ("min", "max"):
-        c = corners[cm[f"{which}_frequency_corner"]]
+        # the coil from cold to settled: the frequency falls as it warms (a fixed off-time)
+        c = corner_at(d, which)
+        settled = corners[cm[f"{which}_frequency_corner"]]
+        assert c["coil_temp_c"] == pytest.approx(settled["ambient_c" if which == "max" else "coil_temp_c"])
         r, ell, v = c["resistance_ohm"], c["inductance_h"], c["supply_v"]
         r_on, r_off = r + 2 * sw + rs, r + 2 * sw
 
@@ -158,7 +172,8 @@ def test_off_time_on_the_slow_path_against_solve_ivp(tmp_path):
         f, mean = 1.0 / periods[-1][0], periods[-1][1]
         assert abs(periods[-2][0] / periods[-1][0] - 1) < 1e-9, "the orbit repeats"
         assert cm[f"{which}_frequency_hz"] == pytest.approx(f, rel=1e-6), which
-        assert c["hold_mean_current_a"] == pytest.approx(mean, rel=1e-6), which
+        if which == "min":   # the settled coil's: the corner's figures are the settled hold's
+            assert c["hold_mean_current_a"] == pytest.approx(mean, rel=1e-6), which
 
 
 def test_simulate_switches_the_slow_decay_in_the_hold_and_the_fast_at_the_release(hysteretic, tmp_path):
@@ -494,11 +509,18 @@ def test_an_eddy_terms_step_chatters_on_a_cold_coil(tmp_path):
     edge of the slow decay (the on and the recirculating loop have the same resistance:
     Q1 + Q4 or Q2 + Q4 and the inline sense resistor). At the settled coil the band is
     wider than that step; a coil switched on cold has less resistance, a larger step and
-    the switch chatters: `current_mode_step` fails there, naming the cold corner, the step
-    written afresh (copper R(T) by IEC 60028, alpha = 0.00393 /K) above the band."""
+    the switch chatters: with a band of 87 mA `current_mode_step` fails there, naming the
+    cold corner, the step written afresh (copper R(T) by IEC 60028, alpha = 0.00393 /K)
+    above the band. A band sized from the frequency is sized with the cold coil too: it
+    clears the cold step."""
     import re
 
-    path = _variant(tmp_path, ('resistance = "24 ohm"', 'resistance = "24 ohm"\neddy_resistance = "300 ohm"'))
+    eddy = ('resistance = "24 ohm"', 'resistance = "24 ohm"\neddy_resistance = "300 ohm"')
+    sized = json.loads(run_cli("design", str(_variant(tmp_path, eddy, name="sized.toml")), "--json").stdout)
+    step = next(c for c in sized["checks"] if c["name"] == "current_mode_step")
+    assert step["ok"] and sized["current_mode"]["sized_from_frequency"], step
+    path = _variant(tmp_path, eddy, ('frequency = "20 kHz"\nmode = "current"\n',
+                                     'frequency = "20 kHz"\nmode = "current"\nband = "87 mA"\n'))
     d = json.loads(run_cli("design", str(path), "--json").stdout)
     step = next(c for c in d["checks"] if c["name"] == "current_mode_step")
     assert not step["ok"] and "(cold)" in step["detail"], step

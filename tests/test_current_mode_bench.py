@@ -10,6 +10,7 @@ of the hysteretic orbit are checked here against scipy's ODE solver with events
 from __future__ import annotations
 
 import json
+import math
 import sys
 from pathlib import Path
 
@@ -223,3 +224,56 @@ def test_firmware_in_the_loop_current_mode_with_an_eddy_term(tmp_path):
     d = make_design(load_drive(path))
     lib = build_firmware(fw, d, cache=tmp_path / "cache")
     _firmware_checks(d, lib, tmp_path, 2e-3)
+
+
+def test_firmware_in_the_loop_arms_the_comparator_at_the_conversion(tmp_path):
+    """The reference driver arms the comparator (here the window watchdog) in the first
+    conversion after the tick that enters HOLD (codegen_templates/driver/driver.c.j2: the
+    ADC handler), and a watchdog armed with the current above its window trips at once (it
+    compares every sample of the continuously converting ADC: common practice). The device
+    once ran the rest of that PWM period on the peak's output, opening the switch half a
+    period late (25 us on the bridge, its HOLD tick on a period boundary): the first
+    switch-off is at that conversion. The switch goes on through the PWM compare the
+    conversion after the PEAK tick loads, at the next period's start (a preloaded compare),
+    so here the switch is on for the design's peak less half a period."""
+    from test_bridge_current import _variant
+
+    from coildrive.bench.firmware_device import FirmwareDevice
+    from coildrive.codegen.host_build import build_firmware
+    from conftest import require_tool
+
+    require_tool("gcc")
+    path = _variant(tmp_path)
+    d = make_design(load_drive(path))
+    r = run_cli("firmware-driver", str(path), "--out", str(tmp_path / "fw"))
+    assert r.returncode == 0, r.stderr
+    lib = build_firmware(tmp_path / "fw", d, cache=tmp_path / "cache")
+    dev = FirmwareDevice(d, lib, DeviceOptions(supply=24.0, coil_temp=40.0, first_actuation=0.002,
+                                               hold_time=0.002))
+    rec, done = [], [0.0]
+    run_samples = dev._run_samples
+
+    def record(a, b, sensed):   # the sensed current, 100 points a stretch
+        a = max(a, done[0])
+        if b > a:
+            done[0] = b
+            x = np.linspace(a, b, 100, endpoint=False)
+            rec.append((x, np.broadcast_to(np.asarray(sensed(x), float), x.shape)))
+        run_samples(a, b, sensed)
+    dev._run_samples = record
+    t = 0.0
+    while dev._t < 0.012:
+        t += 0.002
+        dev.read(t)
+    x = np.concatenate([a for a, _ in rec])
+    y = np.concatenate([b for _, b in rec])
+    period = 1.0 / d.timer.frequency_hz
+    states = {e.text: e.time for e in dev._log if e.text.startswith("state")}
+    t_on = float(x[np.argmax(y > 0)])
+    falls = np.flatnonzero((x > states["state hold"]) & (np.diff(y, append=y[-1]) < 0))
+    t_off = float(x[falls[0]])
+    conversion = (math.floor(states["state hold"] / period) + 0.5) * period   # its middle
+    if conversion < states["state hold"]:
+        conversion += period
+    assert t_off == pytest.approx(conversion, abs=1e-6), (t_off, conversion, states)
+    assert t_off - t_on == pytest.approx(d.pull_in.peak_time_s - period / 2, abs=period / 50)

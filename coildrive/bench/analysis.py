@@ -194,12 +194,55 @@ def _smooth(x: np.ndarray, width: int) -> np.ndarray:
 def _noise_codes(c: np.ndarray) -> float:
     """Noise of one sample in codes from second differences (robust: median absolute
     deviation; at least the quantisation noise). White noise of sigma s gives second
-    differences of sigma s*sqrt(6); smooth signal and sparse switch edges hardly count."""
+    differences of sigma s*sqrt(6); smooth signal and sparse switch edges hardly count.
+    (On integer codes the median absolute deviation moves in whole codes: this reads the
+    noise in steps of about 0.6 codes, coarse but robust, as the phase searches want it;
+    :func:`_block_noise` reads it finely.)"""
     if c.size < 8:
         return QUANTISATION_SIGMA
     d2 = np.diff(c.astype(np.float64), 2)
     mad = float(np.median(np.abs(d2 - np.median(d2))))
     return max(1.4826 * mad / math.sqrt(6.0), QUANTISATION_SIGMA)
+
+
+def _block_noise(c: np.ndarray, lag: int = 0) -> float:
+    """Noise of one sample in codes (one sigma, at least the quantisation noise) of a block
+    of the capture, from second differences ``c[k + 2L] - 2 c[k + L] + c[k]``: white noise
+    of sigma s gives them a sigma of s*sqrt(6), a straight stretch none. ``L`` is 1 (a
+    smooth signal) or, given ``lag`` (a whole number of samples spanning whole PWM
+    periods: :func:`_pwm_lag`), the smaller of the estimates at 1 and at ``lag``: a PWM
+    sampled a few times a period has second differences at lag 1 as large as its ripple,
+    but its samples repeat a period later. Robust to sparse switch edges: the RMS of the
+    second differences within 5 robust sigmas (median absolute deviation, at least one
+    code) of their median -- the RMS, not the median absolute deviation itself, whose
+    whole-code steps on integer codes would read the noise in steps of 0.6 codes."""
+    if c.size < 8:
+        return QUANTISATION_SIGMA
+    x = c.astype(np.float64)
+    out = []
+    for step in {1, lag} - {0}:
+        if x.size < 2 * step + 8:
+            continue
+        d2 = x[2 * step:] - 2.0 * x[step:-step] + x[:-2 * step]
+        r = d2 - np.median(d2)
+        scale = max(1.4826 * float(np.median(np.abs(r))), 1.0)
+        kept = r[np.abs(r) <= 5.0 * scale]
+        out.append(math.sqrt(float(np.mean(kept * kept)) / 6.0))
+    return max(min(out), QUANTISATION_SIGMA) if out else QUANTISATION_SIGMA
+
+
+def _pwm_lag(samples_per_period: float | None, longest: int) -> int:
+    """The lag (samples) for :func:`_block_noise` over a PWM of ``samples_per_period``: the
+    shortest whole number of periods (up to 8) within 0.05 samples of a whole number of
+    samples, no longer than ``longest``; 0 when there is none (or the PWM is slow against
+    the sampling, 16 samples a period or more: its straight segments leave lag 1 clean)."""
+    if not samples_per_period or samples_per_period >= 16.0:
+        return 0
+    for m in range(1, 9):
+        n = m * samples_per_period
+        if abs(n - round(n)) <= 0.05 and 1 <= round(n) <= longest:
+            return int(round(n))
+    return 0
 
 
 def _denoise(c: np.ndarray, sigma: float) -> np.ndarray:
@@ -287,8 +330,10 @@ class _Levels:
     zero: int
 
 
-def _levels(c: np.ndarray, blocks: int = 512) -> _Levels:
-    """Noise and zero levels from contiguous blocks spread over the capture."""
+def _levels(c: np.ndarray, blocks: int = 512, samples_per_period: float | None = None) -> _Levels:
+    """Noise and zero levels from contiguous blocks spread over the capture
+    (``samples_per_period``: the hold's PWM, whose samples repeat a period later:
+    :func:`_pwm_lag`)."""
     if c.size == 0:
         return _Levels(0, QUANTISATION_SIGMA, 3)
     block = min(1024, max(64, c.size // 32))
@@ -300,18 +345,35 @@ def _levels(c: np.ndarray, blocks: int = 512) -> _Levels:
         starts = np.linspace(0, c.size - block, blocks).astype(np.int64)
         parts = [c[a:a + block] for a in starts]
     sample = np.concatenate(parts)
-    # the quietest blocks (idle, smooth rises) tell the noise; PWM in the hold does not
-    sigma = max(float(np.percentile([_noise_codes(p) for p in parts], 10.0)), QUANTISATION_SIGMA)
+    lag = _pwm_lag(samples_per_period, block // 8)
+    # the quiet blocks (idle, smooth rises, a PWM a whole period apart) tell the noise: those
+    # within 1.5 x the 10th percentile of the blocks' estimates, pooled (the percentile
+    # alone reads low by the estimates' own scatter)
+    est = np.array([_block_noise(p, lag) for p in parts])
+    quiet = est[est <= 1.5 * float(np.percentile(est, 10.0))]
+    sigma = max(math.sqrt(float(np.mean(quiet * quiet))), QUANTISATION_SIGMA)
     # idle: the most common code near the bottom (zero current; the hold's codes can be
     # more common overall when the sampling is commensurate with the PWM)
     clipped = np.clip(sample, 0, None)
     bottom = clipped[clipped <= np.percentile(clipped, 2.0) + math.ceil(4.0 * sigma) + 1]
     idle = int(np.argmax(np.bincount(bottom)))
-    # an idle ADC at zero current clips the noise's lower half: its upper half, from the
-    # RMS above the idle code (half-normal: sigma = sqrt(2) rms; +0.5 for truncation)
-    above = bottom.astype(np.float64) - idle
-    clipped_sigma = math.sqrt(2.0 * float(np.mean(np.maximum(above, 0.0) ** 2))) + 0.5
-    sigma = max(sigma, clipped_sigma if np.any(above > 0) else sigma)
+    # an idle ADC at zero current clips the noise's lower half: the upper half tells it.
+    # A truncating ADC reads code >= idle + k when the noise passes k - offset, so the
+    # shares q_k of the idle samples at or above idle + 1 and idle + 2 give the normal
+    # quantiles z_k = (k - offset) / s: s = 1 / (z_2 - z_1), or 1 / z_1 (offset 0) when
+    # too few reach idle + 2; plus the quantisation noise (only samples in idle stretches:
+    # 4 neighbours either side near the bottom too, not the foot of a rise passing through)
+    low = (sample <= np.percentile(clipped, 2.0) + math.ceil(4.0 * sigma) + 1).astype(np.float64)
+    still = np.convolve(low, np.ones(9), mode="same") >= 9.0 - 1e-9
+    above = clipped[still].astype(np.float64) - idle
+    q1, q2 = float(np.mean(above >= 1)), float(np.mean(above >= 2))
+    if above.size >= 64 and 0.0 < q1 < 0.5:
+        from statistics import NormalDist
+
+        z1 = NormalDist().inv_cdf(1.0 - q1)
+        z2 = NormalDist().inv_cdf(1.0 - q2) if 0.0 < q2 < q1 else math.inf
+        s_n = 1.0 / (z2 - z1) if q2 * above.size >= 20 and z2 > z1 + 1e-9 else 1.0 / z1
+        sigma = max(sigma, math.sqrt(s_n * s_n + QUANTISATION_SIGMA**2))
     zero = idle + max(3, int(math.ceil(6.0 * sigma)))
     return _Levels(idle, sigma, zero)
 
@@ -776,7 +838,7 @@ def analyse(capture: Capture, *, pull_in_current: float | None = None,
     f_hold = hold_frequency if hold_frequency is not None else meta.hold_frequency_hz
     notes: list[str] = []
     rd = _Reader(capture, float(fs), float(apc), meta.zero_code)
-    lv = _levels(rd.c)
+    lv = _levels(rd.c, samples_per_period=fs / f_hold if f_hold else None)
     idle = min_idle if min_idle is not None else max(MIN_IDLE_S, 3.0 / f_hold if f_hold else 0.0)
     has_on = any(e.kind == EventKind.ON for e in capture.events)
     if len(capture) == 0:

@@ -677,6 +677,15 @@ class FirmwareDevice(LineOutput):
                     return np.where(x < s, off_current(x),
                                     bm.state(np.maximum(x - s, 0.0), late[2], late[1])[0])
         self._outputs = new
+        if (self._cm is not None and int(self.lib.fil_threshold()) >> 31 and not boosting and late is None
+                and not self._mixed):
+            # the driver armed the comparator in this conversion (the hold's first, after the
+            # tick that entered HOLD): it compares from here on, so the rest of the period is
+            # stepped event by event (not run to the period's end on the peak's output, half
+            # a period late on average)
+            self._tick -= sum(1 for x in ticks if x >= s)   # the ticks after s: not done yet
+            self._i = float(current(s))
+            return self._step_current(t0, start=s, pieces=[(t0, s, current)])
         if self._mixed:
             self._fast_end = int(self.lib.fil_fast_end())   # the next period's
         self._run_samples(s, t0 + T, sensed)
@@ -792,7 +801,7 @@ class FirmwareDevice(LineOutput):
         self._take_frames()
         return T
 
-    def _step_current(self, t0: float) -> float:
+    def _step_current(self, t0: float, start: float | None = None, pieces: list | None = None) -> float:
         """One PWM period of a current-mode hold: the switch as the driver's threshold
         handlers set it, the comparator stepped with the coil. Between events the current
         is one closed-form segment (switch on: the rise; off: the freewheel decay, through
@@ -801,7 +810,8 @@ class FirmwareDevice(LineOutput):
         trip ``hold.sense_delay`` after the sensed current crosses the armed threshold
         (the high code's current switch on, the low code's switch off: code ``k`` is
         ``k`` amps-per-code, the design's convention) and the off-time one-shot's expiry
-        (its counts at the design's off-time prescaler on the timer clock)."""
+        (its counts at the design's off-time prescaler on the timer clock). ``start``: the
+        period's rest from there (s; its conversion done), ``pieces`` what came before."""
         if self._arm is not None and self._arm.active:
             raise RuntimeError("the armature is still in flight when the current-mode hold starts: a hold "
                                "switched by thresholds with the armature moving is not modelled")
@@ -813,9 +823,9 @@ class FirmwareDevice(LineOutput):
             ticks.append(self._tick / self.tick_rate)
             self._tick += 1
         th, clock = self._cm, float(self.drive.board.timer.clock)
-        t, i = t0, self._i
-        converted = False
-        pieces = []                # (start s, end s, coil current function) of the period
+        t, i = (t0 if start is None else start), self._i
+        converted = start is not None
+        pieces = list(pieces or [])   # (start s, end s, coil current function) of the period
         for _ in range(10000):    # a handful of edges per period; the bound only stops a runaway
             on, path = self._cm_segment()
             lp = self._loops[path]

@@ -331,8 +331,8 @@ def _current_header_summary(design: Design) -> list[str]:
     what = (f"hysteretic {r.lower_a:.4g}..{r.upper_a:.4g} A" if r.control == "hysteretic" else
             f"peak {r.upper_a:.4g} A, off {r.off_time_s * 1e6:.5g} us")
     return [f"current   mode hold, {what}: switching {r.min_frequency_hz:.5g}..{r.max_frequency_hz:.5g} Hz "
-            f"over the corners (nominal {r.nominal_frequency_hz:.5g} Hz); the PWM compare below is "
-            "the fixed-duty fallback"]
+            f"over the corners, the coil cold to settled (nominal {r.nominal_frequency_hz:.5g} Hz); the PWM "
+            "compare below is the fixed-duty fallback"]
 
 
 def _current_header_checks(design: Design, macro: str) -> list[tuple[str, str]]:

@@ -18,7 +18,9 @@ to it), then replaces everything the hold decides with the current-mode model of
 * coil temperatures, pull-in, peak phase, release, ADC thresholds and cautions at the
   temperatures the current-mode hold settles at;
 * checks: the switching frequency stays inside ``hold.min_frequency`` ..
-  ``hold.max_frequency`` at every corner, the threshold is reachable at every corner,
+  ``hold.max_frequency`` at every corner with the coil anywhere from cold to settled
+  (:mod:`coildrive.design.current_sweep`; the JSON's range and duties cover that span
+  too, and the sizing takes the corners cold too), the threshold is reachable at every corner,
   the sense position suits the control (hysteretic needs the coil path), the codes fit
   the ADC, the off time fits the timer.
 * hold losses (each freewheel element and the switch, from the exact switching cycle by
@@ -59,6 +61,7 @@ from . import hold_voltage
 from .hold_voltage import closing_checks
 from .checks import base_checks
 from .corners import CornerGrid, corner_grid, nominal_point
+from .current_sweep import steady_state, sweep
 from .evaluate import PointResults, moving_armature, release_figures, switch_voltage_peak
 from .figures import (adc_code, adc_thresholds, corners_of, hold_spread, loss_figures, pull_in_result,
                       release_result, saving_figures, slow_hold_drive)
@@ -100,15 +103,6 @@ def allowed_range(drive: Drive) -> tuple[float, float, str]:
     if drive.board.timer.max_pwm_frequency > 0:
         return h.min_frequency, drive.board.timer.max_pwm_frequency, "board timer.max_pwm_frequency"
     return h.min_frequency, DEFAULT_MAX_FREQUENCY, "default"
-
-
-def steady_state(drive: Drive, lp, lower_a, upper_a, off_time, delay) -> CurrentModeSteadyState:
-    """The current-mode steady state for the drive's control at loop ``lp``."""
-    if drive.hold.control == "hysteretic":
-        return hysteretic_steady_state(lower_a, upper_a, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
-                                       lp.inductance, delay)
-    return off_time_steady_state(upper_a, off_time, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
-                                 lp.inductance, delay)
 
 
 def settle(drive: Drive, supply, ambient, r_factor, l_factor, lower_a, upper_a, off_time, delay,
@@ -159,15 +153,20 @@ def _smallest_holding(drive: Drive, grid: CornerGrid, codes: np.ndarray, band: i
 
 
 def _sizing_loops(drive: Drive, grid: CornerGrid):
-    """Loops at the corners and the nominal point with the coil at the temperature a hold
-    at ``hold.current`` gives it (sizing only; the design then evaluates exactly)."""
+    """Loops at the nominal point and the corners with the coil at the temperature a hold
+    at ``hold.current`` gives it, then the corners with the coil cold (at the ambient: the
+    hold switches at every temperature between, :mod:`coildrive.design.current_sweep`:
+    its extremes lie at the two ends except a hysteretic period's extreme inside the span);
+    sizing only, the design then evaluates the whole span exactly and checks it."""
     nom = nominal_point(drive)
-    sup = np.concatenate([nom.supply, grid.supply])
     amb = np.concatenate([nom.ambient, grid.ambient])
     rf = np.concatenate([nom.r_factor, grid.r_factor])
-    lf = np.concatenate([nom.l_factor, grid.l_factor])
-    temp = closed_form_temperature(drive, amb, rf, drive.hold.current)
-    temp = np.where(np.isfinite(temp), temp, drive.thermal.max_coil_temp)
+    hot = closed_form_temperature(drive, amb, rf, drive.hold.current)
+    hot = np.where(np.isfinite(hot), hot, drive.thermal.max_coil_temp)
+    temp = np.concatenate([hot, grid.ambient])
+    sup = np.concatenate([nom.supply] + [grid.supply] * 2)
+    rf = np.concatenate([nom.r_factor] + [grid.r_factor] * 2)
+    lf = np.concatenate([nom.l_factor] + [grid.l_factor] * 2)
     return loop(drive, sup[None, :], temp[None, :], rf[None, :], lf[None, :])
 
 
@@ -376,7 +375,8 @@ def _split_saving(drive: Drive, grid: CornerGrid, res: PointResults, cm: Current
                   loss: HoldLosses, fallback, peak_time: float) -> dict | None:
     """What split decay would save in a current-mode hold on a fast-decay path: the same
     drive with the slow hold path, its thresholds chosen again (so the switching
-    frequency changes too). ``None`` with a diode path or with split decay fitted."""
+    frequency changes too, over the coil's temperatures from cold to settled). ``None`` with
+    a diode path or with split decay fitted."""
     if drive.freewheel.type == "diode" or split_decay(drive):
         return None
     slow, assumed = slow_hold_drive(drive)
@@ -387,9 +387,10 @@ def _split_saving(drive: Drive, grid: CornerGrid, res: PointResults, cm: Current
     fb = fallback.hold.split_decay_saving or {}
     out = saving_figures(drive, res, loss, float(np.max(cm.duty)), rs, ls,
                              float(np.max(cms.duty)), fb.get("compare_ticks_split"), assumed)
-    reg = cms.regulated
-    f = cms.frequency[reg] if np.any(reg) else np.zeros(1)
-    out.update(min_frequency_split_hz=float(np.min(f)), max_frequency_split_hz=float(np.max(f)),
+    hyst = th.control == "hysteretic"
+    span = sweep(slow, grid, rs.coil_temp, th.lower_a if hyst else 0.0, th.upper_a, th.off_time_s, th.delay_s)
+    out.update(min_frequency_split_hz=0.0 if span is None else span.min_frequency_hz,
+               max_frequency_split_hz=0.0 if span is None else span.max_frequency_hz,
                lower_code_split=th.lower_code if th.control == "hysteretic" else None,
                upper_code_split=th.upper_code,
                off_time_split_s=None if th.control == "hysteretic" else th.off_time_s)
@@ -460,7 +461,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                          drive=drive)[0]
     nominal = dataclasses.replace(nominal, label="nominal: " + nominal.label)
 
-    result = _mode_result(drive, th, grid, cm, float(nom_cm.frequency[0]))
+    result = _mode_result(drive, th, grid, cm, float(nom_cm.frequency[0]), res.coil_temp)
     hold = HoldResult(
         mode="current", current_a=drive.hold.current, frequency_hz=result.nominal_frequency_hz,
         duty=float(np.max(cm.duty)), compare_ticks=fallback.hold.compare_ticks,
@@ -632,15 +633,26 @@ def _spread(drive: Drive, grid: CornerGrid, res: PointResults) -> dict:
 
 
 def _mode_result(drive: Drive, th: Thresholds, grid: CornerGrid, cm: CurrentModeSteadyState,
-                 nominal_frequency: float) -> CurrentModeResult:
-    """The thresholds and the switching range over the corners (the JSON's ``current_mode``)."""
+                 nominal_frequency: float, settled) -> CurrentModeResult:
+    """The thresholds and the switching range over the corners (the JSON's
+    ``current_mode``): the frequencies, duties and shortest segment with the coil at every
+    temperature from cold to ``settled`` (degC per corner; :mod:`~.current_sweep`)."""
     f_lo, f_hi, f_src = allowed_range(drive)
     reg = cm.regulated
-    f = np.where(reg, cm.frequency, np.nan)
-    k_flo = int(np.nanargmin(f)) if np.any(reg) else 0
-    k_fhi = int(np.nanargmax(f)) if np.any(reg) else 0
-    segments = np.where(reg, np.minimum(cm.t_on, cm.t_off), np.inf)
     hyst = th.control == "hysteretic"
+    span = sweep(drive, grid, settled, th.lower_a if hyst else 0.0, th.upper_a, th.off_time_s, th.delay_s)
+    if span is None:
+        flo = fhi = 0.0
+        k_lo = k_hi = 0
+        t_lo = t_hi = float(grid.ambient[0])
+        duties = (float(np.min(cm.duty)), float(np.max(cm.duty)))
+        shortest = math.inf
+    else:
+        flo, fhi = span.min_frequency_hz, span.max_frequency_hz
+        k_lo, k_hi = span.min_frequency_index, span.max_frequency_index
+        t_lo, t_hi = span.min_frequency_temp_c, span.max_frequency_temp_c
+        duties = (span.min_duty, span.max_duty)
+        shortest = span.shortest_segment_s
     return CurrentModeResult(
         control=th.control, sense_position=drive.board.sense.position, code_current_a=th.lsb_a,
         lower_code=th.lower_code if hyst else None, lower_a=th.lower_a if hyst else None,
@@ -652,11 +664,11 @@ def _mode_result(drive: Drive, th: Thresholds, grid: CornerGrid, cm: CurrentMode
         off_prescaler=None if hyst else th.off_prescaler, off_ticks=None if hyst else th.off_ticks,
         sized_from_frequency=th.sized, sense_delay_s=th.delay_s,
         nominal_frequency_hz=nominal_frequency,
-        min_frequency_hz=float(f[k_flo]) if np.any(reg) else 0.0, min_frequency_corner=grid.label(k_flo),
-        max_frequency_hz=float(f[k_fhi]) if np.any(reg) else 0.0, max_frequency_corner=grid.label(k_fhi),
+        min_frequency_hz=flo, min_frequency_corner=grid.label(k_lo), min_frequency_coil_temp_c=t_lo,
+        max_frequency_hz=fhi, max_frequency_corner=grid.label(k_hi), max_frequency_coil_temp_c=t_hi,
         allowed_min_frequency_hz=f_lo, allowed_max_frequency_hz=f_hi, allowed_max_source=f_src,
-        min_duty=float(np.min(cm.duty)), max_duty=float(np.max(cm.duty)),
-        shortest_segment_s=float(np.min(segments)), regulated_corners=int(np.sum(reg)),
+        min_duty=duties[0], max_duty=duties[1],
+        shortest_segment_s=shortest, regulated_corners=int(np.sum(reg)),
         corners=len(grid))
 
 
@@ -701,8 +713,10 @@ def _current_checks(drive: Drive, th: Thresholds, r: CurrentModeResult, adc, res
         if r.max_frequency_hz > r.allowed_max_frequency_hz and r.min_frequency_hz < r.allowed_min_frequency_hz:
             hint = " — the corners spread wider than the allowed range: widen the range"
     add(Check("current_mode_frequency", bool(f_ok),
-              f"switching {r.min_frequency_hz:.0f} Hz ({r.min_frequency_corner}) .. "
-              f"{r.max_frequency_hz:.0f} Hz ({r.max_frequency_corner}) vs allowed "
+              f"switching {r.min_frequency_hz:.0f} Hz ({r.min_frequency_corner}, coil "
+              f"{r.min_frequency_coil_temp_c:.4g} degC) .. {r.max_frequency_hz:.0f} Hz "
+              f"({r.max_frequency_corner}, coil {r.max_frequency_coil_temp_c:.4g} degC) over the coil "
+              f"from cold to settled vs allowed "
               f"{r.allowed_min_frequency_hz:.0f}..{r.allowed_max_frequency_hz:.0f} Hz "
               f"(upper end: {r.allowed_max_source}; 20 kHz lower default: the audible limit, common "
               f"practice)" + hint))

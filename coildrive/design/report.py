@@ -428,8 +428,9 @@ def current_mode_table(design: Design) -> Table:
                   + (" (sized from hold.frequency)" if r.sized_from_frequency else ""))
     t.add_row("switching frequency", f"{r.min_frequency_hz:.0f} .. {r.max_frequency_hz:.0f} Hz",
               f"nominal {r.nominal_frequency_hz:.0f} Hz; allowed {r.allowed_min_frequency_hz:.0f}.."
-              f"{r.allowed_max_frequency_hz:.0f} Hz")
-    t.add_row("switch-on fraction", f"{r.min_duty:.3f} .. {r.max_duty:.3f}", "over the corners")
+              f"{r.allowed_max_frequency_hz:.0f} Hz; the coil cold to settled")
+    t.add_row("switch-on fraction", f"{r.min_duty:.3f} .. {r.max_duty:.3f}",
+              "over the corners, the coil cold to settled")
     t.add_row("sense", r.sense_position, f"delay {r.sense_delay_s * 1e6:.3g} us; one code "
               f"{r.code_current_a * 1e3:.4g} mA")
     return t

@@ -116,7 +116,11 @@ class ClosedLoopResult:
 
 @dataclass(frozen=True)
 class CurrentModeResult:
-    """The ``current_mode`` object of the design JSON (SI, Hz, degC)."""
+    """The ``current_mode`` object of the design JSON (SI, Hz, degC). The switching range,
+    the duties and the shortest segment cover every coil temperature from cold (the
+    ambient) to settled at each corner (:mod:`coildrive.design.current_sweep`): each
+    extreme names its corner (``*_corner``, the corner grid's label) and the coil's
+    temperature there (``*_coil_temp_c``)."""
 
     control: str
     sense_position: str
@@ -138,6 +142,8 @@ class CurrentModeResult:
     min_frequency_corner: str
     max_frequency_hz: float
     max_frequency_corner: str
+    min_frequency_coil_temp_c: float
+    max_frequency_coil_temp_c: float
     allowed_min_frequency_hz: float
     allowed_max_frequency_hz: float
     allowed_max_source: str
