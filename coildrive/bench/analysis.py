@@ -637,7 +637,8 @@ def _hold(rd: _Reader, h0: int, h1: int, lv: _Levels, sense: str, f_hold: float 
     The ripple comes from the spread of the samples inside each period (so a mean that
     still drifts does not count as ripple): a ripple of peak-to-peak ``r`` whose segments
     are short against ``L/R`` is a triangle, whose values spread evenly over ``r`` (sigma
-    ``r / sqrt(12)``), less the noise of one sample.
+    ``r / sqrt(12)``), less the noise of one sample (measured over the same samples:
+    ``_noise_codes_ramps``).
     """
     fs, apc = rd.fs, rd.apc
     spp = fs / f_hold if f_hold else None
