@@ -158,3 +158,24 @@ LAYOUTS = {
     "semicolon-decimal-comma": (write_semicolon_decimal_comma, []),
     "preamble-beside": (write_preamble_beside, ["--current-scale", "10 A/V"]),
 }
+
+
+def write_bench_doc_records(folder) -> list[str]:
+    """The records docs/bench.md's scope example reads (and the README's one line of it),
+    written into ``folder``: the demo valve's coil at 35 degC, seed 2, as ``scope.csv``
+    (the four-channel layout with a units row), ``scope-wrong.csv`` (the same with 40 %
+    more resistance) and ``stopped.csv`` (two columns, ending half-way through a third
+    actuation). Returns the file names."""
+    from coildrive.config import load_drive
+    from coildrive.design import design
+    from coildrive.resources import example
+
+    demo = design(load_drive(example("demo-valve")))
+    write_preamble_units_row(scope_record(demo, coil_temp=35.0, seed=2), folder / "scope.csv")
+    write_preamble_units_row(scope_record(demo, coil_temp=35.0, seed=2, resistance_scale=1.4),
+                             folder / "scope-wrong.csv")
+    full = scope_record(demo, coil_temp=35.0, seed=2)
+    length = full.on_times[1] - full.on_times[0]
+    write_plain_seconds(scope_record(demo, coil_temp=35.0, seed=2, actuations=3,
+                                     duration=full.on_times[1] + 1.5 * length), folder / "stopped.csv")
+    return ["scope.csv", "scope-wrong.csv", "stopped.csv"]

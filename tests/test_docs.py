@@ -74,14 +74,19 @@ def test_relative_links_and_anchors_resolve():
     assert not broken, broken
 
 
-def _shown_runs():
-    """``(command, shown output lines)`` for every ``$ coildrive ...`` in the README's code
-    blocks whose files are all in the repository (no pipe, no file made by an earlier
-    step of the prose)."""
+#: A pipe into one of these only picks lines, so every shown line is one the command prints.
+_LINE_PICKERS = ("head", "tail", "grep", "sed")
+
+
+def _shown_runs(page="README.md", made=()):
+    """``(command, columns, arguments, shown output lines)`` for every ``$ coildrive ...``
+    in ``page``'s code blocks whose files are all in the repository or named in ``made``
+    (files the test writes first); a pipe is allowed only into a command that picks lines
+    (head, tail, grep, sed), the shown lines being then a part of what the command prints."""
     import shlex
 
     runs, block, inside = [], [], False
-    for line in (ROOT / "README.md").read_text().splitlines():
+    for line in (ROOT / page).read_text().splitlines():
         if line.startswith("```"):
             if inside:
                 cmd = None
@@ -98,7 +103,9 @@ def _shown_runs():
             block.append(line)
     out = []
     for cmd, shown in runs:
-        words = shlex.split(cmd) if cmd and "|" not in cmd and "--port" not in cmd else []
+        cmd, *piped = cmd.split(" | ")
+        picks = all(p.split()[0] in _LINE_PICKERS for p in piped)
+        words = shlex.split(cmd) if cmd and picks and "|" not in cmd and "--port" not in cmd else []
         # shown at 100 columns unless a line is wider (a table rich leaves unwrapped)
         columns = str(max([100] + [len(ln) for ln in shown]))
         if words and words[0].startswith("COLUMNS="):
@@ -107,26 +114,23 @@ def _shown_runs():
             continue
         files = [w for w in words[2:] if w.endswith((".toml", ".cdcap", ".csv")) and not w.startswith("-")]
         inputs = [w for w in files if w.startswith(("examples/", "boards/"))]
-        if any(w not in inputs for w in files if w.endswith((".cdcap",))) or \
-                any(w.endswith(".toml") and not (ROOT / w).exists() for w in files):
+        if any(w not in inputs and w not in made for w in files if w.endswith((".cdcap", ".csv"))) or \
+                any(w.endswith(".toml") and not (ROOT / w).exists() and w not in made for w in files):
             continue
         out.append((cmd, columns, [str(ROOT / w) if w in inputs else w for w in words[1:]], shown))
     return out
 
 
-def test_readme_outputs_are_what_the_commands_print(tmp_path, monkeypatch):
-    # every shown line (bar the elided "...") appears, spaces aside, in what the command
-    # prints today: a change that moves a figure must update the README with it
+def _stale_lines(runs):
+    """The shown lines (bar the elided "...") that do not appear, spaces aside, in what
+    their command prints today (run in the current directory)."""
     from typer.testing import CliRunner
 
     from coildrive.cli import app
 
-    runs = _shown_runs()
-    assert len(runs) >= 8, [r[0] for r in runs]   # the parser still finds the usage examples
-    monkeypatch.chdir(tmp_path)
-
     def norm(text):
-        return re.sub(r"\s+", " ", text).strip()
+        # the time a sweep took is the machine's, not the command's: any shown time passes
+        return re.sub(r"\s+", " ", re.sub(r"in [\d.e+]+ ms;", "in # ms;", text)).strip()
     stale = []
     for cmd, columns, args, shown in runs:
         res = CliRunner().invoke(app, args, env={"COLUMNS": columns})
@@ -134,4 +138,47 @@ def test_readme_outputs_are_what_the_commands_print(tmp_path, monkeypatch):
         for line in shown:
             if line.strip() and "..." not in line and norm(line) not in printed:
                 stale.append(f"{cmd}: {line.strip()}")
+    return stale
+
+
+def test_readme_outputs_are_what_the_commands_print(tmp_path, monkeypatch):
+    # every shown line appears in what the command prints today: a change that moves a
+    # figure must update the README with it
+    runs = _shown_runs()
+    assert len(runs) >= 8, [r[0] for r in runs]   # the parser still finds the usage examples
+    monkeypatch.chdir(tmp_path)
+    stale = _stale_lines(runs)
+    assert not stale, "\n".join(stale[:20])
+
+
+def test_bench_scope_example_is_what_the_commands_print(tmp_path, monkeypatch):
+    # docs/bench.md's scope records (and the README's line of the same example), written
+    # as the page says, then its commands run: the records' head, check (with the plot),
+    # fit, the 40 % coil and the record that stops mid-actuation
+    from scope_layouts import write_bench_doc_records
+
+    monkeypatch.chdir(tmp_path)
+    made = write_bench_doc_records(tmp_path)
+    runs = _shown_runs("docs/bench.md", made)
+    readme = [r for r in _shown_runs("README.md", made) if any(w in made for w in r[2])]
+    assert len(runs) == 4 and len(readme) == 1, [r[0] for r in runs + readme]
+    stale = _stale_lines(runs + readme)
+    text = (ROOT / "docs" / "bench.md").read_text()
+    shown_head = text.split("$ head -9 scope.csv\n", 1)[1].split("\n$ ", 1)[0].splitlines()
+    head = (tmp_path / "scope.csv").read_text().splitlines()[:9]
+    stale += [f"head -9 scope.csv: {a}" for a, b in zip(shown_head, head) if a != b]
+    assert len(shown_head) == 9 and not stale, "\n".join(stale[:20])
+
+
+def test_tuning_examples_are_what_the_commands_print(tmp_path, monkeypatch):
+    # docs/tuning.md's offline sweeps: the demo valve as it is, on a copy of its board
+    # given the switch's transition times (as the page says), and with no feasible ripple
+    board = (ROOT / "boards" / "lab-m32-zener.toml").read_text()
+    assert '\nmax_voltage = "100 V"\n' in board
+    (tmp_path / "lab-m32-timed.toml").write_text(board.replace(
+        '\nmax_voltage = "100 V"\n', '\nmax_voltage = "100 V"\nrise_time = "200 ns"\nfall_time = "150 ns"\n'))
+    monkeypatch.chdir(tmp_path)
+    runs = _shown_runs("docs/tuning.md", ["lab-m32-timed.toml"])
+    assert len(runs) == 3, [r[0] for r in runs]
+    stale = _stale_lines(runs)
     assert not stale, "\n".join(stale[:20])

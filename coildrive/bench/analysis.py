@@ -245,6 +245,22 @@ def _pwm_lag(samples_per_period: float | None, longest: int) -> int:
     return 0
 
 
+def _noise_codes_ramps(c: np.ndarray) -> float:
+    """Noise of one sample in codes over a stretch that is straight between sparse corners
+    (a PWM hold resolved by ten or more samples a period): the RMS of the second
+    differences (white noise of sigma s: s*sqrt(6)), those beyond 4 of the robust scale
+    (``_noise_codes``) left out as the ripple's corners; at least the quantisation noise.
+    The RMS, not the median: a median of values on a scope's coarse vertical step moves
+    by whole steps (a 2 mA noise on 0.5 mA steps reads 1.9 mA), and the ripple is the
+    small difference of two variances that this noise's square is one of."""
+    if c.size < 8:
+        return QUANTISATION_SIGMA
+    d2 = np.diff(c.astype(np.float64), 2)
+    d2 -= np.median(d2)
+    keep = np.abs(d2) <= max(4.0 * math.sqrt(6.0) * _noise_codes(c), 2.0)
+    return max(math.sqrt(float(np.mean(d2[keep] ** 2)) / 6.0), QUANTISATION_SIGMA)
+
+
 def _denoise(c: np.ndarray, sigma: float) -> np.ndarray:
     """Codes for a level crossing: as they are when the noise is below half a code, else a
     centred moving average just wide enough to bring it there (at most 15 samples; on a
@@ -683,7 +699,8 @@ def _hold(rd: _Reader, h0: int, h1: int, lv: _Levels, sense: str, f_hold: float 
     The ripple comes from the spread of the samples inside each period (so a mean that
     still drifts does not count as ripple): a ripple of peak-to-peak ``r`` whose segments
     are short against ``L/R`` is a triangle, whose values spread evenly over ``r`` (sigma
-    ``r / sqrt(12)``), less the noise of one sample.
+    ``r / sqrt(12)``), less the noise of one sample (measured over the same samples:
+    ``_noise_codes_ramps``).
     """
     fs, apc = rd.fs, rd.apc
     spp = fs / f_hold if f_hold else None
@@ -705,7 +722,10 @@ def _hold(rd: _Reader, h0: int, h1: int, lv: _Levels, sense: str, f_hold: float 
     elif not resolved:
         notes.append(f"the sample rate resolves the PWM with {spp:.3g} samples per period "
                      f"(< {min_spp:g}): hold mean only, no ripple")
-    noise2 = lv.sigma**2
+    # the noise under the ripple, from the hold's own samples: the capture's level (its
+    # quietest blocks: idle, clipped at zero, and smooth rises) reads low, and the ripple's
+    # variance can be a quarter of the noise's, so a few % low here is tens of % of ripple
+    noise2 = (_noise_codes_ramps(c) if resolved else lv.sigma)**2
     live = c > lv.zero
     if sense == "switch" and np.any(live):
         # on-time samples sit at the hold current, far above a noisy zero reading
