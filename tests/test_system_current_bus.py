@@ -204,17 +204,36 @@ def test_the_droop_moves_the_comparator_edges(both):
     assert np.all(span[0] > span[1] * (1 + 1e-4)), span
 
 
-def test_simulate_feeds_the_droop_into_current_mode_channels(tmp_path):
+@pytest.mark.parametrize("control", ["hysteretic", "off_time"])
+def test_simulate_feeds_the_droop_into_current_mode_channels(tmp_path, control):
     """``simulate SYSTEM.toml`` (the CLI end to end) on the manifold with its two purge
-    valves on a hysteretic current-mode hold (3 us comparator delay) and the rail's 0.25 ohm
-    and 1000 uF: the bus is fed back (no stiff line), and the CSV's switch columns played
-    into the circuit written afresh agree with scipy solve_ivp (DOP853, rtol 1e-10) within
-    1e-6 V and 1e-6 A (:func:`test_system.droop_against_solve_ivp`)."""
+    valves on a current-mode hold (3 us comparator delay; a fixed off-time each on a timer
+    of its own, which makes it) and the rail's 0.25 ohm and 1000 uF: the bus is fed back (no
+    stiff line), and the CSV's switch columns played into the circuit written afresh agree
+    with scipy solve_ivp (DOP853, rtol 1e-10) within 1e-6 V and 1e-6 A
+    (:func:`test_system.droop_against_solve_ivp`)."""
     from test_system import _current_mode_system, droop_against_solve_ivp
 
-    path = _current_mode_system(tmp_path / "manifold")
+    path = _current_mode_system(tmp_path / "manifold", control=control)
+    if control == "off_time":
+        board = path.parent / "board.toml"
+        board.write_text(board.read_text().replace("timers = [[1, 2, 3, 4, 5, 6]]", "timers = [[1, 2, 3, 4], [5], [6]]"))
     r = CliRunner().invoke(app, ["simulate", str(path), "--supply", "20", "--coil-temp", "0", "--hold-time", "0.001",
                                  "--csv", str(tmp_path / "a.csv")])
     assert r.exit_code == 0, r.output
     assert "bus_v: the bus droops" in r.stderr and "taken stiff" not in r.stderr, r.stderr
     droop_against_solve_ivp(path, tmp_path)
+
+
+def test_a_current_mode_eddy_channel_still_runs_stiff(tmp_path):
+    """What is not built stays one clear line: a current-mode hold with an eddy term on the
+    drooping rail runs on the stiff bus and ``simulate`` names the channel and why."""
+    from test_system_eddy_current import _eddy_current_system
+
+    path = _eddy_current_system(tmp_path / "manifold")
+    r = CliRunner().invoke(app, ["simulate", str(path), "--supply", "24", "--coil-temp", "20", "--hold-time", "0.001",
+                                 "--csv", str(tmp_path / "a.csv")])
+    assert r.exit_code == 0, r.output
+    lines = [x for x in r.stderr.splitlines() if "taken stiff" in x]
+    assert len(lines) == 1 and "'purge1'" in lines[0] and "current-mode hold with" in lines[0], r.stderr
+    assert "bus_v" not in r.stderr

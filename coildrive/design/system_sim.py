@@ -175,8 +175,8 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
             # grid takes them and ``points`` samples of each of its segments
             fed = feed(ks)
             on_bus(supply, rail_row["source_resistance_ohm"], rail_row["capacitance_f"], fed, t)
-            t = np.unique(np.concatenate([t, *(_segment_samples(f, points, t[-1]) for f in fed
-                                               if isinstance(f, ThresholdRun))]))
+            t = np.unique(np.concatenate([t, *(_segment_samples(f, runs[n], starts[n], points, t[-1])
+                                               for f, n in zip(fed, ks) if isinstance(f, ThresholdRun))]))
     current, on, draw = [], [], []
     for k, (c, r, s0) in enumerate(zip(result.channels, runs, starts)):
         clamp = c.design.drive.freewheel.type == "clamp"
@@ -357,13 +357,19 @@ def boost_draw(drive, w, start: float, peak: float, supply: float, t, i, sw) -> 
     return coil + np.where(in_peak, s.boost * i / (s.boost_efficiency * supply), 0.0)
 
 
-def _segment_samples(run: ThresholdRun, points: int, t_end: float) -> np.ndarray:
+def _segment_samples(run: ThresholdRun, w, s0: float, points: int, t_end: float) -> np.ndarray:
     """A current-mode channel's switching moments on the bus (s, up to ``t_end``) and
-    ``points`` samples of each of its segments between them."""
-    start = np.append(run.segments()[0], t_end)
-    start = start[start <= t_end]
+    ``points`` samples of each of its segments between them; its release's samples are
+    those of its stiff run ``w`` (switched on at ``s0`` s) after its final turn-off, moved to
+    the bus's final turn-off (past ``t_end`` where that is later)."""
+    start, kind = run.segments()
+    tail = np.empty(0)
+    if kind[-1] == RELEASE:
+        off = w.time[int(np.flatnonzero(w.switch_on)[-1])] + s0        # the stiff final turn-off
+        tail = w.time[w.time + s0 >= off] + s0 + (start[-1] - run.slow - off)
+    start = np.append(start[start <= t_end], t_end)
     x = np.linspace(0.0, 1.0, points + 1)
-    return np.concatenate([start, *(a + (b - a) * x for a, b in zip(start[:-1], start[1:]))])
+    return np.concatenate([start, tail, *(a + (b - a) * x for a, b in zip(start[:-1], start[1:]))])
 
 
 def _off_edge(t, i, on):
