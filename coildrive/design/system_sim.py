@@ -9,14 +9,18 @@ rail's current is the sum of the switches' currents (a coil's current while its 
 conducts, and while it decays through a clamp across its switch, which takes it from the
 rail). On a rail with the system's source resistance and capacitance whose channels are
 all linear coils on voltage-mode holds, on one switch with a path across the coil (an
-eddy term too) or on a full bridge with slow decay, the bus droops and its droop is fed back into the coils, exact between
+eddy term too) or on a full bridge with slow decay, or linear coils on one switch under a
+current-mode hold (their comparators' edges found on the bus,
+:class:`~coildrive.model.shared_bus.ThresholdRun`; the rail is run twice so that the grid
+has those edges), the bus droops and its droop is fed back into the coils, exact between
 switching moments (:func:`coildrive.model.shared_bus.on_bus` on each channel's
 :func:`bus_run`; ``SystemRun.bus``); any other rail runs on a stiff bus
 (``SystemRun.stiff`` says why).
 
 A current-mode channel runs its own actuation
 (:func:`coildrive.design.hold_current.current_mode_actuation`: the nominal thresholds
-switch it, each edge a sample), on at its start offset for the peak its firmware picks.
+switch it, each edge a sample), on at its start offset for the peak its firmware picks
+(on a drooping rail that feeds it, its run's switching is the bus's).
 A boosted channel runs its own actuation (the peak from the boost until its threshold at
 the nominal sense chain, the hold from the main supply), on at its start offset; its draw
 from the rail is :func:`boost_draw` (the converter's input in place of the peak's coil
@@ -44,7 +48,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..model.circuit import full_bridge, loop, split_decay
-from ..model.shared_bus import BusRun, on_bus
+from ..model.shared_bus import BusRun, ThresholdRun, on_bus
 from ..model.shared_pwm import HOLD_OFF, ON, RELEASE, ChannelRun, channel_run
 from ..model.waveform import EDGE, Waveform, actuation
 from .firmware import firmware_setting
@@ -111,6 +115,7 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
                          "have: shorten --hold-time or lower --points")
     runs, periods, duties, starts = [], [], [], []
     boosts: dict[int, float] = {}      # a boosted channel's peak (s), by its run
+    gated: dict[int, tuple] = {}       # a current-mode channel's (thresholds, peak s, hold s), by its run
     hold_clamp = {}    # a linear one-switch channel whose hold's off-times go through a clamp
     for c in result.channels:
         d = c.design
@@ -130,6 +135,7 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
             runs.append(current_mode_actuation(drv, d.hold.thresholds, supply, coil_temp, peak, hold_time,
                                                r_factor, l_factor, points, label=c.name))
             starts.append(c.offset_s)
+            gated[len(runs) - 1] = (d.hold.thresholds, peak, hold_time)
             continue
         if drv.supply.boosted:
             # the peak ends at the current threshold, not on the timer: on at the offset
@@ -154,6 +160,23 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
         starts.append(c.offset_s)
     t = np.unique(np.concatenate([r.samples(points) if isinstance(r, ChannelRun) else r.time + s0
                                   for r, s0 in zip(runs, starts)]))
+
+    def feed(ks):       # each channel of a drooping rail as its bus feeds it
+        return [bus_run(result.channels[n].design.drive, runs[n], starts[n], supply, coil_temp, r_factor,
+                        l_factor, gated.get(n)) for n in ks]
+    rails = []
+    for rail_row in result.rails:
+        if rail_row.get("source_resistance_ohm"):
+            ks = [n for n, c in enumerate(result.channels) if c.name in rail_row["channels"]]
+            rails.append((rail_row, ks, _stiff_reason([result.channels[n] for n in ks], feed(ks))))
+    for rail_row, ks, why in rails:
+        if why is None and any(n in gated for n in ks):
+            # a current-mode channel's edges move with the bus: a first run finds them, the
+            # grid takes them and ``points`` samples of each of its segments
+            fed = feed(ks)
+            on_bus(supply, rail_row["source_resistance_ohm"], rail_row["capacitance_f"], fed, t)
+            t = np.unique(np.concatenate([t, *(_segment_samples(f, runs[n], starts[n], points, t[-1])
+                                               for f, n in zip(fed, ks) if isinstance(f, ThresholdRun))]))
     current, on, draw = [], [], []
     for k, (c, r, s0) in enumerate(zip(result.channels, runs, starts)):
         clamp = c.design.drive.freewheel.type == "clamp"
@@ -177,19 +200,16 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
         through = ((sw == 0) & (bypass == 0) & (i > 0)) if clamp else np.zeros(len(t), bool)
         draw.append(i * np.maximum(sw, through) - i * back)
     buses, stiff = {}, []
-    for rail_row in result.rails:
-        if not rail_row.get("source_resistance_ohm"):
-            continue
-        ks = [n for n, c in enumerate(result.channels) if c.name in rail_row["channels"]]
-        fed = [bus_run(result.channels[n].design.drive, runs[n], starts[n], supply, coil_temp, r_factor, l_factor)
-               for n in ks]
-        why = _stiff_reason([result.channels[n] for n in ks], fed)
+    for rail_row, ks, why in rails:
+        fed = feed(ks)
         if why is not None:
             stiff.append(f"rail {', '.join(rail_row['channels'])}: {why}")
             continue
         cur, bus = on_bus(supply, rail_row["source_resistance_ohm"], rail_row["capacitance_f"], fed, t)
         for p, n in enumerate(ks):
             current[n] = cur[p]
+            if isinstance(fed[p], ThresholdRun):      # its switch as the bus made it (on-times closed)
+                on[n] = ((fed[p].kind_at(t) == ON) | (fed[p].kind_at(t, "right") == ON)).astype(np.int8)
             # a full bridge's fast decay returns its current into the rail: negative
             back = (fed[p].kind_at(t) == RELEASE) & (cur[p] > 0) if fed[p].returns else 0.0
             draw[n] = cur[p] * on[n] - cur[p] * back
@@ -202,12 +222,14 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
 def _stiff_reason(channels, fed) -> str | None:
     """Why a drooping rail's channels run on the stiff bus, or ``None`` when the bus's
     droop is fed back into them (:func:`coildrive.model.shared_bus.on_bus`: linear coils,
-    an eddy term too, on one switch, voltage-mode holds, a freewheel path across the coil;
+    an eddy term too, on one switch, voltage-mode holds or a linear coil's current-mode
+    hold, a freewheel path across the coil;
     ``fed``: each channel's :func:`bus_run`)."""
     for c, r in zip(channels, fed):
         if r is None:
             what = ("a latching coil" if is_latch(c.design) else
-                    "a current-mode hold" if c.design.hold.mode == "current" else
+                    "a current-mode hold with a moving armature, a flux-linkage curve, an eddy term, "
+                    "a full bridge or a boosted peak" if c.design.hold.mode == "current" else
                     "a boosted peak" if c.design.drive.supply.boosted else
                     "a moving armature, a flux-linkage curve, or a full bridge with an eddy term or "
                     "a mixed-decay hold")
@@ -219,7 +241,7 @@ def _stiff_reason(channels, fed) -> str | None:
 
 
 def bus_run(drive, run, start: float, supply: float, coil_temp: float, r_factor: float,
-            l_factor: float) -> BusRun | None:
+            l_factor: float, gated: tuple | None = None) -> BusRun | None:
     """A channel as the drooping bus feeds it (:class:`~coildrive.model.shared_bus.BusRun`):
     a linear coil on one switch under a voltage-mode hold (its
     :class:`~coildrive.model.shared_pwm.ChannelRun`), or with an eddy term, or on a full
@@ -228,9 +250,23 @@ def bus_run(drive, run, start: float, supply: float, coil_temp: float, r_factor:
     turn-off or while the bypass conducts, the release path after -- a bridge's fast decay,
     returning into the bus over its two diode drops; the loop's (magnetising) inductance
     and eddy resistance at ``supply`` V, ``coil_temp`` degC and the tolerance factors);
-    ``None`` for anything else (:func:`_stiff_reason` says why)."""
+    A linear coil on one switch under a current-mode hold (``gated``: its thresholds, peak s
+    and hold s; split decay too) is a :class:`~coildrive.model.shared_bus.ThresholdRun`, its
+    edges found on the bus. ``None`` for anything else (:func:`_stiff_reason` says why)."""
     if isinstance(run, ChannelRun):
         return BusRun.of(run)
+    if drive.hold.mode == "current":
+        if gated is None or own_waveform(drive) or drive.supply.boosted:
+            return None
+        th, peak, hold_time = gated
+        lp = loop(drive, supply, coil_temp, r_factor, l_factor)
+        rel = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
+        slow = max(0.0, -drive.freewheel.bypass_lead) if split_decay(drive) else 0.0
+        return ThresholdRun(np.array([start]), np.array([ON]), float(lp.r_on), float(lp.r_off), float(lp.v_off),
+                            float(rel.r_off), float(rel.v_off), float(lp.inductance), control=th.control,
+                            lower=th.lower_a, upper=th.upper_a, off_time=th.off_time_s, delay=th.delay_s,
+                            peak_end=start + peak, hold_end=start + peak + hold_time, v_on=float(lp.v_on),
+                            slow=slow)
     bridge = full_bridge(drive)
     if not (isinstance(run, Waveform) and (drive.coil.eddy_resistance or bridge) and not drive.coil.flux_current
             and drive.armature is None and not (bridge and (drive.coil.eddy_resistance or drive.hold.fast_fraction))
@@ -319,6 +355,21 @@ def boost_draw(drive, w, start: float, peak: float, supply: float, t, i, sw) -> 
         charging = (rel >= 0) & (level < trace[0] * (1 - 1e-9))
         return coil + np.where(charging | in_peak, s.boost_power / (s.boost_efficiency * supply), 0.0)
     return coil + np.where(in_peak, s.boost * i / (s.boost_efficiency * supply), 0.0)
+
+
+def _segment_samples(run: ThresholdRun, w, s0: float, points: int, t_end: float) -> np.ndarray:
+    """A current-mode channel's switching moments on the bus (s, up to ``t_end``) and
+    ``points`` samples of each of its segments between them; its release's samples are
+    those of its stiff run ``w`` (switched on at ``s0`` s) after its final turn-off, moved to
+    the bus's final turn-off (past ``t_end`` where that is later)."""
+    start, kind = run.segments()
+    tail = np.empty(0)
+    if kind[-1] == RELEASE:
+        off = w.time[int(np.flatnonzero(w.switch_on)[-1])] + s0        # the stiff final turn-off
+        tail = w.time[w.time + s0 >= off] + s0 + (start[-1] - run.slow - off)
+    start = np.append(start[start <= t_end], t_end)
+    x = np.linspace(0.0, 1.0, points + 1)
+    return np.concatenate([start, tail, *(a + (b - a) * x for a, b in zip(start[:-1], start[1:]))])
 
 
 def _off_edge(t, i, on):

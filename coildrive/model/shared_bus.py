@@ -25,15 +25,20 @@ coil back on the bus, and while off it freewheels in its own loop down to zero.
 :func:`on_bus` runs every channel's whole actuation on the bus (:class:`BusRun`): a coil
 with an eddy resistance across it keeps its magnetising current in the state (still
 linear), and a full bridge's fast decay returns its current into the bus until its
-diodes block. Units A, V, ohm, H, F, s.
+diodes block. A current-mode hold (:class:`ThresholdRun`) switches on its comparator's
+thresholds: its edges are events found on the coupled closed form. Units A, V, ohm, H,
+F, s.
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
+
+from .rl import decay_time
+from .shared_pwm import HOLD_OFF, ON, RELEASE
 
 #: Samples of each piece between two switching moments where the lowest bus is looked for
 #: (then refined to the sample's neighbours by golden section).
@@ -247,11 +252,18 @@ class BusRun:
         """A plain coil's :class:`~coildrive.model.shared_pwm.ChannelRun` on the bus."""
         return cls(run.start, run.kind, run.r_on, run.r_off, run.v_off, run.r_rel, run.v_rel, run.ind)
 
-    def kind_at(self, t) -> np.ndarray:
+    def segments(self) -> tuple[np.ndarray, np.ndarray]:
+        """``(start s, kind)`` of its segments as switched so far (fixed here: the timer's
+        and the peak's moments)."""
+        return np.asarray(self.start, float), np.asarray(self.kind)
+
+    def kind_at(self, t, side: str = "left") -> np.ndarray:
         """The segment's kind at the times ``t`` (s; a time at a switching moment: the one
-        before it, as :func:`on_bus`'s samples); -1 before the switch-on."""
-        k = np.searchsorted(self.start, np.asarray(t, float), side="left") - 1
-        return np.where(k >= 0, self.kind[np.clip(k, 0, None)], -1)
+        before it, as :func:`on_bus`'s samples, or with ``side="right"`` the one after);
+        -1 before the switch-on."""
+        start, kind = self.segments()
+        k = np.searchsorted(start, np.asarray(t, float), side=side) - 1
+        return np.where(k >= 0, kind[np.clip(k, 0, None)], -1)
 
     @property
     def share(self) -> float:
@@ -283,6 +295,102 @@ class BusRun:
         return x, np.where(dt < t_b, np.maximum((r_e * x - v_p) / (r_p + r_e), 0.0), 0.0)
 
 
+@dataclass(frozen=True)
+class ThresholdRun(BusRun):
+    """A linear coil on one switch under a current-mode hold, as :func:`on_bus` switches
+    it: its switching depends on the bus, so its segments are found as it runs (``log``:
+    ``start``, ``kind`` and the ``next`` scheduled edge ``(s, kind)``). On at ``start[0]``
+    for the peak to ``peak_end`` s, then (as
+    :func:`coildrive.design.hold_current.threshold_hold` on a stiff supply) off --
+    ``control`` ``"hysteretic"``: until the current has decayed to ``lower`` A and
+    ``delay`` s more (closed form: the freewheel does not see the bus); ``"off_time"``:
+    ``off_time`` s -- then on until the current reaches ``upper`` A (a root of the coupled
+    closed form, :func:`_crossing`) and ``delay`` s more, the comparator's delay (on for
+    the delay alone when the current is at or above ``upper`` already); the hold ends at
+    the first turn-off at or after ``hold_end`` s, then ``slow`` s on the hold's path (split
+    decay's late bypass) and the release path. Where ``upper`` is at or above
+    ``v_on/r_on`` the switch stays on to ``hold_end``."""
+
+    control: str = "hysteretic"
+    lower: float = 0.0
+    upper: float = 0.0
+    off_time: float = 0.0
+    delay: float = 0.0
+    peak_end: float = 0.0
+    hold_end: float = 0.0
+    v_on: float = 0.0
+    slow: float = 0.0
+    log: dict = field(default_factory=dict)
+
+    def __post_init__(self):
+        reach = self.upper < self.v_on / self.r_on
+        first = self.peak_end if reach and self.hold_end > self.peak_end else self.hold_end
+        self.log.update(start=[float(self.start[0])], kind=[ON], next=(first, HOLD_OFF))
+
+    def segments(self) -> tuple[np.ndarray, np.ndarray]:
+        return np.asarray(self.log["start"], float), np.asarray(self.log["kind"])
+
+    @property
+    def next_edge(self) -> float:
+        """The scheduled switching moment (s; ``inf``: none)."""
+        return math.inf if self.log["next"] is None else self.log["next"][0]
+
+    def waiting(self) -> bool:
+        """On in the hold, its turn-off not yet found (the upper threshold ahead)."""
+        return self.log["next"] is None and self.log["kind"][-1] == ON
+
+    def found(self, when: float) -> None:
+        """The current reached ``upper`` at ``when`` s: off ``delay`` s later."""
+        self.log["next"] = (when + self.delay, HOLD_OFF)
+
+    def switch(self, t: float, i: float) -> None:
+        """Take the scheduled edge at ``t`` s, the coil at ``i`` A, and schedule the next."""
+        start, kind = self.log["start"], self.log["kind"]
+        new = self.log["next"][1]
+        self.log["next"] = None
+        if new == RELEASE:            # split decay's bypass opens
+            start.append(t), kind.append(RELEASE)
+            return
+        if new == ON and not (i >= self.upper and self.delay <= 0.0):
+            start.append(t), kind.append(ON)
+            if i >= self.upper:       # tripped at once: on for the comparator's delay
+                self.found(t)
+            return
+        # a turn-off, or an on-edge tripped at once without a delay (no on-time)
+        if t >= self.hold_end:        # the final turn-off
+            if self.slow > 0.0:
+                start.append(t), kind.append(HOLD_OFF)
+                self.log["next"] = (t + self.slow, RELEASE)
+            else:
+                start.append(t), kind.append(RELEASE)
+            return
+        start.append(t), kind.append(HOLD_OFF)
+        off = (max(float(decay_time(self.lower, i, self.r_off, self.v_off, self.ind)), 0.0) + self.delay
+               if self.control == "hysteretic" else self.off_time)
+        self.log["next"] = (t + off, ON)
+
+
+def _crossing(args, row: int, level: float, span: float) -> float | None:
+    """The first time (s, within ``span``) the state's component ``row`` of :func:`_solve`
+    with ``args`` (all but its times) reaches ``level`` (a coil's current rising to its threshold), or ``None``:
+    :data:`CROSSING_SAMPLES` samples of the closed form bracket it, scipy's brentq finds it."""
+    from scipy.optimize import brentq
+
+    s = np.linspace(0.0, span, CROSSING_SAMPLES)
+    x = _solve(*args[:6], s, *args[6:])[row]
+    up = np.flatnonzero(x >= level)
+    if len(up) == 0:
+        return None
+    if up[0] == 0:
+        return 0.0
+    return brentq(lambda u: float(_solve(*args[:6], np.array([u]), *args[6:])[row, 0]) - level, s[up[0] - 1], s[up[0]],
+                  xtol=1e-15, rtol=1e-14)
+
+
+#: Samples of a piece where a rising current is looked for at its threshold (then brentq
+#: between the samples that bracket it).
+CROSSING_SAMPLES = 64
+
 #: Largest condition number of a piece's eigenvector matrix evaluated through the
 #: eigen-decomposition; past it (nearly equal but unequal time constants) each sample is
 #: the matrix exponential itself (scipy.linalg.expm), slower but exact to rounding.
@@ -293,7 +401,10 @@ def on_bus(v_s: float, r_s: float, c: float, runs, t) -> tuple[np.ndarray, np.nd
     """``(currents, bus)``: the channels' coil currents (A, one row per run; the terminal
     current with an eddy term) and the bus (V) at the times ``t`` (s, ascending), each
     channel switched as its :class:`BusRun` says (its switching moments are the timer's
-    and its peak's: they do not depend on the bus) but fed from the bus ``v(t)`` behind
+    and its peak's: they do not depend on the bus; a :class:`ThresholdRun`'s are its
+    comparator's, found as the pieces run: its scheduled edges split the pieces, and
+    while it waits for its upper threshold the first crossing in a piece, a root of the
+    closed form (:func:`_crossing`), plus its delay, ends it) but fed from the bus ``v(t)`` behind
     ``r_s`` ohm and ``c`` F from ``v_s`` V instead of a stiff one. While its switch
     conducts a coil is on the bus (``L di/dt = v - R_on i``; with an eddy term
     :func:`_on_matrix`'s magnetising current); in its hold's off-times and its release it
@@ -306,29 +417,34 @@ def on_bus(v_s: float, r_s: float, c: float, runs, t) -> tuple[np.ndarray, np.nd
     charged), every coil at zero before its run's start; a sample at a switching moment
     has the value just before it (a step, with an eddy term, comes after it), but at a
     run's own switch-on the value after it (its first)."""
-    from .shared_pwm import HOLD_OFF, ON, RELEASE
-
     t = np.asarray(t, float)
     n = len(runs)
     cur = np.zeros((n, len(t)))
     bus = np.full(len(t), float(v_s))
-    moments = np.unique(np.concatenate([r.start for r in runs] + [[t[-1]]]))
+    moments = np.unique(np.concatenate([r.segments()[0] for r in runs] + [[t[-1]]]))
     moments = moments[moments <= t[-1]]
+    gated = [k for k, r in enumerate(runs) if isinstance(r, ThresholdRun)]
     state = np.zeros(n)            # each coil's (magnetising) current at the piece's start
     after = np.zeros(n)            # its terminal current at the last piece's end
     v = float(v_s)
     pieces = list(zip(moments[:-1], moments[1:]))
     while pieces:
         a_t, b_t = pieces.pop(0)
+        # a current-mode channel's scheduled edge inside the piece ends it there
+        cut = min([runs[k].next_edge for k in gated if a_t < runs[k].next_edge < b_t], default=b_t)
+        if cut < b_t:
+            pieces.insert(0, (cut, b_t))
+            b_t = cut
         # the piece's samples after its start up to its end (a sample at a switching moment
         # has the value before it: an eddy term's terminal current steps there), then its end
         lo, hi = np.searchsorted(t, a_t, side="right"), np.searchsorted(t, b_t, side="right")
         dt = np.append(t[lo:hi] - a_t, b_t - a_t)
         active, off, back = [], [], []
         for k, r in enumerate(runs):
-            if a_t < r.start[0]:
+            start, kinds = r.segments()
+            if a_t < start[0]:
                 continue
-            kind = r.kind[np.searchsorted(r.start, a_t, side="right") - 1]
+            kind = kinds[np.searchsorted(start, a_t, side="right") - 1]
             if kind == ON:
                 active.append(k)
             elif kind == RELEASE and r.returns:
@@ -352,6 +468,25 @@ def on_bus(v_s: float, r_s: float, c: float, runs, t) -> tuple[np.ndarray, np.nd
                 b_t = a_t + when
                 hi = np.searchsorted(t, b_t, side="right")
                 dt = np.append(t[lo:hi] - a_t, b_t - a_t)
+        waiting = [p for p, k in enumerate(active) if k in gated and runs[k].waiting()]
+        if waiting:
+            # a current-mode channel's current reaching its threshold: the first within the
+            # piece ends it (after the comparator's delay); a crossing after that end is not
+            # yet known (the piece's end changes the circuit)
+            args = (v_s, r_s, c, [runs[k].r_on for k in active], [runs[k].ind for k in active],
+                    np.concatenate([state[active], state[back], [v]]), [runs[k].share for k in active],
+                    [(runs[k].r_rel, runs[k].ind, runs[k].v_rel) for k in back])
+            found = [(p, _crossing(args, p, runs[active[p]].upper, b_t - a_t)) for p in waiting]
+            found = [(p, s) for p, s in found if s is not None]
+            edge = min([a_t + s + runs[active[p]].delay for p, s in found], default=b_t)
+            if edge < b_t:
+                pieces.insert(0, (edge, b_t))
+                b_t = edge
+                hi = np.searchsorted(t, b_t, side="right")
+                dt = np.append(t[lo:hi] - a_t, b_t - a_t)
+            for p, s in found:
+                if a_t + s <= b_t:
+                    runs[active[p]].found(a_t + s)
         for k, (r_p, v_p) in off:
             x, terminal = runs[k].decay(state[k], r_p, v_p, dt)
             cur[k, lo:hi], state[k], after[k] = terminal[:-1], x[-1], terminal[-1]
@@ -370,11 +505,14 @@ def on_bus(v_s: float, r_s: float, c: float, runs, t) -> tuple[np.ndarray, np.nd
         for p, k in enumerate(active):
             terminal = share[p] * xs[p] + (1.0 - share[p]) * xs[-1] / r_on[p]
             cur[k, lo:hi], state[k], after[k] = terminal[:-1], xs[p, -1], terminal[-1]
-            if a_t == runs[k].start[0] and lo > 0 and t[lo - 1] == a_t:
+            if a_t == runs[k].segments()[0][0] and lo > 0 and t[lo - 1] == a_t:
                 # a run's own switch-on sample: the step there is its first value (a
                 # waveform's first row), from zero
                 cur[k, lo - 1] = (1.0 - share[p]) * v / r_on[p]
         bus[lo:hi], v = xs[-1, :-1], float(xs[-1, -1])
+        for k in gated:
+            while runs[k].next_edge == b_t:
+                runs[k].switch(b_t, after[k])
     last = t >= moments[-1]
     bus[last] = v
     cur[:, last] = after[:, None]
