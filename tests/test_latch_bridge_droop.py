@@ -29,7 +29,7 @@ from conftest import EXAMPLES, run_cli
 from coildrive.bench.latch_check import predict_pulse
 from coildrive.design.latch_montecarlo import latch_monte_carlo
 from test_latch_armature_curves import designed
-from test_latch_flux import _corner, _table, device_reports
+from test_latch_flux import _corner, device_reports
 
 BRIDGE = EXAMPLES / "latching" / "irrigation-valve-bridge-12v.toml"
 ALPHA = 0.00393   # annealed copper, per K (IEC 60028)
@@ -160,12 +160,3 @@ def test_simulate_check_and_the_device(bridge, tmp_path):
         f = mc["pulses"][q.name]
         assert f["decay_time_s"]["max"] <= q.decay_time_s * (1 + 1e-12)
         assert f["end_current_a"]["min"] >= q.end_current_a * (1 - 1e-12)
-
-
-def test_a_curve_on_a_drooping_bridge_that_cannot_sink_is_refused_in_one_line(tmp_path):
-    # (on a supply that sinks it is designed: tests/test_latch_bridge_droop_curves.py)
-    path = droop_bridge(tmp_path, False)
-    path.write_text(path.read_text().replace('inductance = "15 mH"\n', _table()))
-    r = run_cli("design", str(path))
-    assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1, r.stderr
-    assert ": supply.sink: " in r.stderr and "flux-linkage curve" in r.stderr

@@ -231,12 +231,13 @@ def _block_noise(c: np.ndarray, lag: int = 0) -> float:
     return max(min(out), QUANTISATION_SIGMA) if out else QUANTISATION_SIGMA
 
 
-def _pwm_lag(samples_per_period: float | None, longest: int) -> int:
+def _pwm_lag(samples_per_period: float | None, longest: int, slow: float = 16.0) -> int:
     """The lag (samples) for :func:`_block_noise` over a PWM of ``samples_per_period``: the
     shortest whole number of periods (up to 8) within 0.05 samples of a whole number of
     samples, no longer than ``longest``; 0 when there is none (or the PWM is slow against
-    the sampling, 16 samples a period or more: its straight segments leave lag 1 clean)."""
-    if not samples_per_period or samples_per_period >= 16.0:
+    the sampling, ``slow`` samples a period or more: its straight segments leave lag 1
+    clean)."""
+    if not samples_per_period or samples_per_period >= slow:
         return 0
     for m in range(1, 9):
         n = m * samples_per_period
@@ -725,7 +726,14 @@ def _hold(rd: _Reader, h0: int, h1: int, lv: _Levels, sense: str, f_hold: float 
     # the noise under the ripple, from the hold's own samples: the capture's level (its
     # quietest blocks: idle, clipped at zero, and smooth rises) reads low, and the ripple's
     # variance can be a quarter of the noise's, so a few % low here is tens of % of ripple
-    noise2 = (_noise_codes_ramps(c) if resolved else lv.sigma)**2
+    # A current with steps (an eddy term's terminal current steps at each edge) has corners
+    # no wider than the noise, which the ramps' estimate takes for noise: samples whole PWM
+    # periods apart repeat the ripple and its steps, so their second differences hold the
+    # noise alone -- the lower of the two (the settled hold repeats; the lag's is absent
+    # where whole periods span no whole number of samples)
+    lag = _pwm_lag(spp, c.size // 3, slow=math.inf) if resolved else 0
+    noise2 = (min(_noise_codes_ramps(c), _block_noise(c, lag) if lag else math.inf) if resolved
+              else lv.sigma)**2
     live = c > lv.zero
     if sense == "switch" and np.any(live):
         # on-time samples sit at the hold current, far above a noisy zero reading
