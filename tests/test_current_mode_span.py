@@ -11,6 +11,10 @@ Outside references, named beside each check (none goes through the package's loo
 * the same two segments in closed form (the RL step response, from memory) over a dense
   sweep of the coil's temperature at every corner, copper R(T) by IEC 60028 (alpha =
   0.00393 /K).
+
+``coildrive tune`` (the offline sweep and live tuning) takes no current-mode switching
+from anywhere: both refuse the hold in one line, so the cold-to-settled range is the
+design's alone and tuning never recommends a band checked on the settled coil only.
 """
 
 from __future__ import annotations
@@ -24,6 +28,9 @@ import pytest
 from coil_span import at_temp, corner_at
 from conftest import drive_path, run_cli
 from coildrive.config import load_drive
+from coildrive.design import design
+from coildrive.errors import InputError
+from coildrive.tune.live import LiveTuner
 from test_bridge_current import _variant
 
 
@@ -123,3 +130,44 @@ def test_the_fastest_point_inside_the_warm_up_against_solve_ivp_and_a_dense_swee
     f_hot = max(_closed_form(c["supply_v"], c["resistance_ohm"] + sw + rs, c["resistance_ohm"] + rs, vd,
                              c["inductance_h"], lo, hi)[0] for c in d["corners"])
     assert math.isfinite(f_hot) and cm["max_frequency_hz"] > f_hot * (1 + 1e-4)
+
+
+def test_tuning_never_recommends_a_band_whose_cold_coil_switches_too_slowly(tmp_path):
+    """The bridge's band of 4 codes with the allowed minimum at 25 kHz: every settled corner
+    switches above it (at least 25.5 kHz, RL step response written here), the coil switched
+    on cold below it (24.6 kHz, at the design's slowest point: solve_ivp with threshold
+    events). The design fails ``current_mode_frequency`` there; ``coildrive tune`` (offline,
+    with --json and --header) and live tuning (the CLI before it opens the port, and
+    :class:`LiveTuner` from Python) recommend nothing: one line naming hold.mode, exit 2,
+    no header written."""
+    path = _variant(tmp_path, ('mode = "current"\n', 'mode = "current"\nband = "1.6113 mA"\n'
+                               'min_frequency = "25 kHz"\n'))
+    r = run_cli("design", str(path), "--json")
+    assert r.returncode == 1, r.stderr
+    d = json.loads(r.stdout)
+    drive = load_drive(path)
+    cm = d["current_mode"]
+    assert cm["band_codes"] == 4 and cm["allowed_min_frequency_hz"] == 25_000.0
+    sw, rs = drive.switch.on_resistance, drive.board.sense.resistance
+    lo, hi = cm["lower_a"], cm["upper_a"]
+    f_settled = [_closed_form(c["supply_v"], c["resistance_ohm"] + 2 * sw + rs, c["resistance_ohm"] + 2 * sw + rs,
+                              0.0, c["inductance_h"], lo, hi)[0] for c in d["corners"]]
+    assert min(f_settled) > 25_000.0 * 1.01, "settled only, the band would pass"
+    slow = corner_at(d, "min")
+    assert slow["coil_temp_c"] == slow["ambient_c"], "the slowest: a cold coil"
+    r_cold = slow["resistance_ohm"] + 2 * sw + rs
+    f_cold = _ivp_frequency(slow["supply_v"], r_cold, r_cold, 0.0, slow["inductance_h"], lo, hi)
+    assert f_cold < 25_000.0 * 0.99 and cm["min_frequency_hz"] == pytest.approx(f_cold, rel=1e-6), "solve_ivp"
+    check = next(c for c in d["checks"] if c["name"] == "current_mode_frequency")
+    assert not check["ok"] and "coil -10 degC" in check["detail"], check
+    header = tmp_path / "tuned.h"
+    for args in (("tune", str(path), "--json", "--header", str(header)),
+                 ("tune", str(path), "--port", str(tmp_path / "no-such-port"))):
+        t = run_cli(*args)
+        assert t.returncode == 2, t.stdout + t.stderr
+        line = (json.loads(t.stdout)["error"] if "--json" in args else t.stderr.strip())
+        assert "\n" not in line and "hold.mode" in line and "from cold to settled" in line, line
+        assert "Traceback" not in t.stderr
+    assert not header.exists()
+    with pytest.raises(InputError, match="hold.mode.*from cold to settled"):
+        LiveTuner(object(), design(drive))

@@ -236,7 +236,9 @@ class LiveTuner:
     ``design`` is the :class:`~coildrive.design.Design` of the drive the firmware runs;
     ``progress`` is called after each actuation. :meth:`run` returns a
     :class:`LiveResult`; every failure (and Ctrl-C) is in ``result.failure``, and the
-    device has been sent STOP.
+    device has been sent STOP. A hold live tuning cannot step (a latching coil, a
+    current-mode or closed-loop hold) raises :class:`InputError` here, the offline
+    sweep's refusal (:func:`coildrive.tune.sweep.check_tunable`).
     """
 
     def __init__(self, link, design, options: LiveOptions | None = None,
@@ -246,9 +248,11 @@ class LiveTuner:
         self.drive: Drive = design.drive
         self.options = options or LiveOptions()
         self.options.check()
-        if self.drive.hold.mode != "voltage":
-            raise InputError(self.drive.source, "hold.mode", "live tuning steps the duty of a voltage-mode "
-                             "hold; for mode = \"current\" tune the thresholds with coildrive design")
+        # the offline sweep's refusals, one wording (a current-mode hold's switching over the
+        # coil from cold to settled is the design's alone: design/current_sweep.py)
+        from .sweep import check_tunable
+
+        check_tunable(self.drive, "live tuning steps")
         self.progress = progress
         self.clock = clock
         self.result = LiveResult(drive=self.drive, design=design, options=self.options)

@@ -642,13 +642,19 @@ def check_tunable(drive: Drive, who: str) -> None:
     eddy term (its exact orbit, :func:`coildrive.model.eddy.orbit`; the coil's heat and
     power are the copper's plus the core's eddy loss, :func:`coildrive.model.pwm.coil_heat`),
     a mixed-decay hold (its three-segment orbit) and a moving armature on a full bridge
-    (its slow decay); the live model at the bench point is :mod:`coildrive.tune.live_model`."""
+    (its slow decay); the live model at the bench point is :mod:`coildrive.tune.live_model`.
+
+    Neither takes a current-mode hold's switching frequency or duty from anywhere: its
+    range over the coil from cold (the ambient) to settled is the design's alone
+    (:mod:`coildrive.design.current_sweep`, the ``current_mode_frequency`` check), so
+    tuning never recommends a band or off time checked on the settled coil only."""
     if drive.hold.mode == "latch":
         raise InputError(drive.source, "hold.mode", f"{who} the PWM of a hold; a latching coil has "
                          "none: coildrive design sizes its pulses")
     if drive.hold.mode != "voltage":
         raise InputError(drive.source, "hold.mode", f"{who} the PWM of a voltage-mode hold; for "
-                         "mode = \"current\" run coildrive design (it sizes the thresholds)")
+                         "mode = \"current\" run coildrive design (it sizes the thresholds and checks "
+                         "the switching with the coil from cold to settled)")
     if drive.hold.regulation == "closed_loop":
         raise InputError(drive.source, "hold.regulation", f"{who} a fixed or supply-table compare; "
                          "a closed-loop hold sets its own compare every PWM period and holds its "
