@@ -239,3 +239,50 @@ def test_a_boosted_channel_without_its_efficiency_is_refused(tmp_path):
     assert r.exit_code == 2, r.output
     line = r.stderr.strip()
     assert "\n" not in line and "supply.boost_efficiency: missing" in line, line
+
+
+@pytest.mark.parametrize("eddy", [False, True])
+def test_a_boosted_channel_with_a_moving_armature_is_refused(tmp_path, eddy):
+    """A boosted purge valve given the moving armature of tests/test_system_armature.py
+    (45/70 mH), with and without the 1 kohm eddy term: one line naming ``supply.boost``,
+    exit 2. Why (scipy ``solve_ivp``, LSODA, the boost capacitor into the coil written
+    afresh as in :func:`_simulate`): while the armature still rests on its open stop (the
+    co-energy force ``i^2 L_open^2 beta / (2 L_c)`` below preload + load) the coil is
+    the open one, and from the boost at its highest it passes the seated coil's rise
+    ``V_b/R (1 - exp(-t R/L_c))`` at the coldest loop and lowest seated inductance, which
+    the boosted branch would take: so the rail's bound is not built for it."""
+    from scipy.integrate import solve_ivp
+
+    from test_system_armature import ARMATURE
+
+    path = _folder(tmp_path, eddy=eddy)
+    purge = tmp_path / "purge-valve-24v.toml"
+    purge.write_text(purge.read_text() + ARMATURE)
+    r = CliRunner().invoke(app, ["design", str(path), "--json"])
+    assert r.exit_code == 2, r.output
+    line = r.stderr.strip()
+    assert "\n" not in line and "supply.boost:" in line and "moving armature" in line, line
+    drv = load_drive(purge, BOARD)
+    c, b, s, a = drv.coil, drv.board, drv.supply, drv.armature
+    r_on = (c.resistance * (1 + 0.00393 * (drv.ambient.min - c.reference_temp)) * (1 - c.resistance_tolerance)
+            + drv.switch.on_resistance + b.sense.resistance)                  # IEC 60028, the coldest loop
+    l_f = 1 - c.inductance_tolerance
+    l_open, l_c = a.inductance_open * l_f, a.inductance_closed * l_f
+    beta = (a.inductance_closed - a.inductance_open) / (a.stroke * a.inductance_open)
+    v_b, r_e = s.boost * (1 + s.boost_tolerance), c.eddy_resistance or None
+
+    def rhs(_t, y):        # the magnetising (or the only) current and the capacitor's voltage
+        r = r_on + s.boost_resistance
+        i = y[0] if r_e is None else (y[1] + r_e * y[0]) / (r + r_e)
+        di = (y[1] - r * y[0]) / l_open if r_e is None else r_e * (i - y[0]) / l_open
+        return [di, (-i + s.boost_power / y[1]) / s.boost_capacitance]
+    t = np.linspace(0, 2e-4, 41)
+    sol = solve_ivp(rhs, (0, t[-1]), [0.0, v_b], method="LSODA", rtol=1e-10, atol=1e-12, t_eval=t)
+    i_m = sol.y[0]
+    force = i_m**2 * l_open**2 * beta / (2 * l_c)
+    assert np.all(force < a.spring_preload + a.load_force)           # still on its open stop
+    # the seated rise (with an eddy term the magnetising one, through the Thevenin pair)
+    r_th = r_on if r_e is None else r_on * r_e / (r_on + r_e)
+    seated = v_b / r_on * -np.expm1(-t * r_th / l_c)
+    print(f"at {t[-1] * 1e6:.0f} us: {i_m[-1]:.4f} A against the seated rise {seated[-1]:.4f} A")
+    assert i_m[-1] > 1.3 * seated[-1]

@@ -25,8 +25,8 @@ A channel is a linear coil, with a moving armature (:mod:`coildrive.model.armatu
 an eddy term or both, or a flux-linkage curve (:mod:`coildrive.model.flux_bound`; with a
 moving armature over two curves too, :func:`_gap_rise`), on one
 switch or a full bridge, or a latching coil (its pulses: :func:`_latch_bound_params`), or a
-boosted peak (its converter's draw: :func:`_boost_keys`); what is not is refused in one
-line (:func:`_refuse`). A rail with a curve, an eddy term or a bridge on it takes its droop
+boosted peak without a moving armature (its converter's draw: :func:`_boost_keys`); what
+is not is refused in one line (:func:`_refuse`). A rail with a curve, an eddy term or a bridge on it takes its droop
 from the rail-current bounds (:func:`bus_from_bound`).
 """
 
@@ -1145,22 +1145,28 @@ def _refuse(system: System, ch) -> None:
     closed-loop) hold or a current-mode one, or a latching coil, or a boosted peak.
     Anything else is refused in one line: a moving armature over two curves with an eddy
     term or a boosted peak (its bound takes the coil's own terminal voltage), a boosted
-    peak with an eddy term on a curve or with a moving armature (the eddy term's bound takes
-    a still coil), a boosted peak with a bouncing armature (``restitution``: a rebound's
-    motional term drives the current past the boost's rise, :func:`_boost_keys`), a latching
-    coil's pulses from the boost, and a boosted peak without ``supply.boost_efficiency`` (its
-    converter's draw)."""
+    peak with an eddy term on a curve (the eddy term's bound takes a linear coil), a boosted
+    peak with a bouncing armature (``restitution``: a rebound's motional term drives the
+    current past the boost's rise, :func:`_boost_keys`), a boosted peak with any moving
+    armature, an eddy term or not (:func:`_boost_keys` takes the seated coil's inductance,
+    which the open coil outruns from the boost, and the armature may still fly in the hold,
+    where the PWM's falling flux leaves the closing-only proof of
+    :mod:`~coildrive.model.armature_bound` unproved), a latching coil's pulses from the
+    boost, and a boosted peak without ``supply.boost_efficiency`` (its converter's draw)."""
     d = ch.drive
     why = None
     if d.coil.flux_current and d.armature is not None and (d.coil.eddy_resistance or d.supply.boosted):
         key, why = "armature", ("a moving armature over flux-linkage curves with an eddy-current term or a "
                                 "boosted peak")
-    elif d.supply.boosted and d.coil.eddy_resistance and (d.coil.flux_current or d.armature is not None):
-        key, why = "supply.boost", ("a boosted peak with an eddy-current term on a flux-linkage curve or with a "
-                                    "moving armature")
+    elif d.supply.boosted and d.coil.eddy_resistance and d.coil.flux_current:
+        key, why = "supply.boost", "a boosted peak with an eddy-current term on a flux-linkage curve"
     elif d.supply.boosted and d.armature is not None and d.armature.restitution > 0:
         key, why = "armature.restitution", ("a boosted peak with a bouncing armature (a rebound drives the "
                                             "current past the boost's rise the rail's bound takes)")
+    elif d.supply.boosted and d.armature is not None:
+        key, why = "supply.boost", ("a boosted peak with a moving armature, with or without an eddy-current term "
+                                    "(the open coil rises from the boost faster than the seated coil the rail's "
+                                    "bound takes, and the armature may still move in the hold)")
     elif d.supply.boosted and d.latch is not None:
         key, why = "supply.boost", "a latching coil's pulses from the boost (their rail-current bound)"
     elif d.supply.boosted and not d.supply.boost_efficiency > 0:
@@ -1173,8 +1179,8 @@ def _refuse(system: System, ch) -> None:
                          "or a flux-linkage curve (with an eddy term, or with an [armature] and no eddy term), "
                          "on one switch or a full bridge under a voltage-mode fixed, supply-table, closed-loop "
                          "or current-mode hold, or a latching coil (not from a boost); a boosted peak on a linear "
-                         "coil (an eddy term without an [armature]; no bouncing armature) or on a curve with "
-                         "neither an eddy term nor an [armature]")
+                         "coil (an eddy term or not, no [armature]) or on a curve with neither an eddy term nor an "
+                         "[armature]")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:
