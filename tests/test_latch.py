@@ -163,22 +163,20 @@ def test_what_a_latch_refuses_is_one_line(tmp_path, path, old, new, key):
     assert len(lines) == 1 and key in lines[0], res.stderr
 
 
-@pytest.mark.parametrize("board,droop,key", [("fast-32bit-clamp", False, None), ("fast-32bit-clamp", True,
-                                                                                  "freewheel.type"),
-                                              ("lab-m32-zener", False, None)])
-def test_a_clamp_and_a_zener_are_designed_a_clamp_on_the_drooping_bus_refused(tmp_path, board, droop, key):
+@pytest.mark.parametrize("board,droop", [("fast-32bit-clamp", False), ("fast-32bit-clamp", True),
+                                         ("lab-m32-zener", False)])
+def test_a_clamp_and_a_zener_are_designed(tmp_path, board, droop):
     path = _write(tmp_path, RELAY, 'board = "tiny-8bit-diode"', f'board = "{board}"')
     if not droop:
         path.write_text(path.read_text().replace('source_resistance = "47 ohm"', "# no source resistance"))
     res = CliRunner().invoke(app, ["design", str(path), "--json"])
-    if key is None:
-        # the Zener's or the clamp's share of each pulse (in freewheel_j): the clamped decay
-        # against solve_ivp in tests/test_latch_clamp.py
-        doc = json.loads(res.stdout)
-        assert all(p["freewheel_j"] > 0 for p in doc["latch"]["pulses"]), doc["latch"]
-        return
-    assert res.exit_code == 2 and key in res.stderr and len(res.stderr.strip().splitlines()) == 1
-    assert "latching" in res.stderr and "drooping bus" in res.stderr
+    assert res.exit_code in (0, 1), res.stderr
+    # the Zener's or the clamp's share of each pulse (in freewheel_j): the clamped decay
+    # against solve_ivp in tests/test_latch_clamp.py (on the drooping bus too)
+    doc = json.loads(res.stdout)
+    assert all(p["freewheel_j"] > 0 for p in doc["latch"]["pulses"]), doc["latch"]
+    if droop:   # the clamped decay draws the capacitor down below the pulse's own droop
+        assert all(p["droop_v"] > 0 and p["recharge_time_s"] > p["decay_time_s"] for p in doc["latch"]["pulses"])
 
 
 def test_a_two_winding_drive_without_its_reset_winding_is_refused(tmp_path):

@@ -122,8 +122,10 @@ class PulseResult:
     term). ``decay_time_s``: after the pulse, the longest time to zero current.
     ``peak_switch_voltage_v``: the switch's highest voltage at the pulse's end (a bus
     pumped by a bridge's fast decay with ``supply.sink = false`` included).
-    ``droop_v``: how far a pulse from the capacitor pulls the bus down (0 on a stiff bus);
-    ``recharge_time_s`` how long it then needs to be back within the recharge tolerance
+    ``droop_v``: how far a pulse from the capacitor pulls the bus down (0 on a stiff bus;
+    with a clamp across the switch its decay's draw too, and ``decay_time_s`` on that bus:
+    :func:`clamp_decays_from_full`); ``recharge_time_s`` how long it then needs to be back
+    within the recharge tolerance (with a clamp: from the pulse's end, its decay included)
     (the longest, at ``recharge_corner``; its supply is the source's). ``lowest_node_v``:
     a high-side switch's node at the pulse's end, below ground (``None`` for the others).
 
@@ -413,6 +415,7 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     # the capacitor: droop of the longest pulse from a full capacitor, and its recharge
     droop = recharge = 0.0
     recharge_corner = ""
+    t_zero_bus = None
     if droops:
         s = drive.supply
         full = loop(wd, np.where(pts.supply < drive.supply.max, drive.supply.min, pts.supply), pts.temp,
@@ -423,9 +426,17 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
         else:   # the armature's run carries the capacitor (its lowest over the pulse)
             low = seat_run(wd, full, Points(full.v_on, pts.temp, pts.r_factor, pts.l_factor, pts.sense_factor),
                            peak_time=np.full(full.v_on.shape, t_long))[0].lowest_bus
+        after = 0.0
+        if drive.freewheel.type == "clamp":   # the clamped decay draws on the capacitor
+            clamped = clamp_decays_from_full(wd, full, rel, t_long)
+            low, after = np.minimum(low, clamped.bus_max), clamped.zero_time
+            t_zero_bus = clamped.zero_time
+            dv_end = full.v_on - clamped.bus_at_zero
+        else:
+            dv_end = full.v_on - low
         dv = full.v_on - low
-        t_rc = latch_model.recharge_time(dv, full.v_on, lt.recharge_tolerance, s.source_resistance,
-                                         s.capacitance)
+        t_rc = after + latch_model.recharge_time(dv_end, full.v_on, lt.recharge_tolerance, s.source_resistance,
+                                                 s.capacitance)
         k_r = worst(t_rc)
         droop, recharge = float(np.max(dv)), float(t_rc[k_r])
         recharge_corner = Points(full.v_on, pts.temp, pts.r_factor, pts.l_factor, pts.sense_factor).label(k_r)
@@ -438,7 +449,7 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
         supply_j=float(supply_e[k_e]), copper_j=float(copper[k_e]), switch_sense_j=float(sw_sense[k_e]),
         stored_j=float(np.broadcast_to(stored, supply_e.shape)[k_e]), table=table,
         freewheel_j=float(fw[k_e]), returned_j=float(returned[k_e]), energy_corner=pts.label(k_e),
-        decay_time_s=float(np.max(time_to_zero(wd, lp, rel, i_top, fast))),
+        decay_time_s=float(np.max(time_to_zero(wd, lp, rel, i_top, fast) if t_zero_bus is None else t_zero_bus)),
         peak_switch_voltage_v=v_sw_top,
         switch_voltage_corner=pts.label(k_v), droop_v=droop, recharge_time_s=recharge,
         recharge_corner=recharge_corner, lowest_node_v=node, armature_j=float(moved[k_e]),
@@ -509,6 +520,21 @@ def time_to_zero(drive: Drive, lp, rel, i0, fast=None):
     if fast is None:
         return decay_time(0.0, i0, rel.r_off, rel.v_off, rel.inductance)
     return np.max([f.zero_time for f in fast], axis=0)
+
+
+def clamp_decays_from_full(drive: Drive, full, rel, t_pulse: float):
+    """A clamp across the switch on the drooping bus: the decay after a pulse of
+    ``t_pulse`` s from a full capacitor (the loop ``full``: the source at each point; a
+    linear coil, config), the current flowing on from the bus through the coil into the
+    clamp (:func:`coildrive.model.bus_decay.clamp_decay`, from the pulse's end state of
+    :func:`coildrive.model.supply.state`; ``rel`` the release loop at the same points: its
+    resistance, and ``V_clamp`` = ``v_off + supply``)."""
+    from ..model import supply as bus_model
+
+    s = drive.supply
+    i_e, v_e = bus_model.state(np.full(np.shape(full.v_on), t_pulse), bus_at(drive, full, full.inductance))
+    return bus_decay.clamp_decay(i_e, v_e, full.v_on, s.source_resistance, s.capacitance, rel.r_off,
+                                 full.inductance, rel.v_off + rel.supply)
 
 
 def _bus_check(drive: Drive, name: str, bus_top, pts: Points) -> Check:

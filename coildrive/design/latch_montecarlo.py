@@ -32,7 +32,8 @@ import numpy as np
 from ..config import Drive
 from ..model.rl import decay_integrals
 from .latch import (LatchDesign, Points, plain_pulse, pulse_loop, release_loop, rise_current_at,
-                    seat_run, seated_pulse, table_lengths, time_to_zero, winding_drive)
+                    seat_run, seated_pulse, table_lengths, time_to_zero, winding_drive,
+                    clamp_decays_from_full)
 from . import latch_boost
 from .montecarlo import CHUNK, PERCENTILES, factors, summary
 from .supply import rise_time
@@ -46,7 +47,9 @@ def _figures(wd: Drive, pts: Points, current: float, t_short, t_long) -> tuple:
     and longest length s, per point or one for all); with a moving armature (the set
     pulse) the time is the seat time and the energy and the decay NaN where it is not
     seated by the longest pulse's end. The energy is the supply's (with a clamp across the
-    switch, the decay's draw too)."""
+    switch, the decay's draw too; on the stiff bus, as the design's); with a clamp on the
+    drooping bus the decay's time to zero is on that bus after a pulse from a full
+    capacitor at the sample's supply (:func:`coildrive.design.latch.clamp_decays_from_full`)."""
     lp = pulse_loop(wd, pts)
     rel = release_loop(wd, pts)
     if wd.armature is None:
@@ -63,6 +66,8 @@ def _figures(wd: Drive, pts: Points, current: float, t_short, t_long) -> tuple:
     if wd.freewheel.type == "clamp":   # the decay draws from the bus too (latch._pulse)
         q_on = q_on + decay_integrals(np.where(np.isfinite(t_zero), t_zero, 0.0), np.nan_to_num(i_top), rel.r_off,
                                       rel.v_off, rel.inductance)[0]
+        if wd.supply.droops:   # the time to zero on that bus, from a full capacitor (latch._pulse)
+            t_zero = clamp_decays_from_full(wd, lp, rel, t_long).zero_time
     return (t_req, i_end, lp.v_on * q_on, t_zero)
 
 

@@ -114,7 +114,13 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
     i_top = float(i_on[-1])
     r_off, v_off = float(rel.r_off), float(rel.v_off)
     fast = fast_decay_after(drive, rel, i_top, float(bus[-1]))
-    if fast is None:
+    clamped = clamp_decay_after(drive, rel, i_top, float(bus[-1]))
+    if clamped is not None:   # a clamp on the drooping bus: the decay draws the capacitor down further
+        tz = float(clamped.zero_time)
+        t_d = np.linspace(0.0, tz, points + 1)[1:]
+        i_d, bus_d = bus_decay.clamp_trace(t_d, i_top, float(bus[-1]), *_clamp_args(drive, rel))
+        i_d[-1] = 0.0   # (the zero, to rounding)
+    elif fast is None:
         tz = float(decay_time(0.0, i_top, r_off, v_off, ind))
         t_d = np.linspace(0.0, tz, points + 1)[1:]
         i_d = np.maximum(decay_current(t_d, i_top, r_off, v_off, ind), 0.0)
@@ -152,6 +158,23 @@ def fast_decay_after(drive: Drive, rel, i0: float, v0: float, i_drop: float = 0.
         return None
     coil, i0, v0, v_s, r_s, c, r, v_d = _fast_args(drive, rel, i0, v0)
     return fast_decays(coil, i0, [v0], i_drop, v_s, r_s, c, r, v_d, drive.supply.sink)[0]
+
+
+def clamp_decay_after(drive: Drive, rel, i0: float, v0: float, i_drop: float = 0.0):
+    """A clamp across the switch on the drooping bus (a linear coil, config): the decay of
+    ``i0`` A from the bus at ``v0`` V at the pulse's end, the current flowing on from the
+    bus through the coil into the clamp (:func:`coildrive.model.bus_decay.clamp_decay`,
+    ``drop_time`` to ``i_drop`` A), or ``None`` on a stiff bus or another freewheel.
+    ``rel``: the release loop at one point."""
+    if not (drive.supply.droops and drive.freewheel.type == "clamp"):
+        return None
+    return bus_decay.clamp_decay(i0, v0, *_clamp_args(drive, rel), i_drop)
+
+
+def _clamp_args(drive: Drive, rel) -> tuple:
+    s = drive.supply
+    return tuple(float(np.ravel(x)[0]) for x in (rel.supply, s.source_resistance, s.capacitance, rel.r_off,
+                                                 rel.inductance, rel.v_off + rel.supply))
 
 
 def fast_trace(drive: Drive, rel, i0: float, v0: float, t):
