@@ -329,6 +329,30 @@ def test_firmware_in_the_loop_flies_the_hold_on_the_main_bus(tmp_path, thin):
     assert fl.seat_bus == pytest.approx(float(w.bus_voltage[k]), rel=1e-4)        # simulate
 
 
+@pytest.mark.compiler
+def test_closed_loop_in_flight_on_the_main_bus_in_the_loop(tmp_path):
+    """The example's 1.5 x threshold under a closed-loop hold on the drooping main supply
+    (0.1 ohm), the compiled driver in the loop with the hottest coil at the nominal 13.5 V:
+    the driver's PI carries the armature in flight onto the seat while the bus droops under
+    it, and ``check`` passes (lean: one corner; plumbing, the device shares the model)."""
+    from driver_harness import checked_rows, loop_captures
+
+    from coildrive.bench.messages import EventKind
+    from coildrive.config import load_drive
+    from coildrive.design import design
+
+    (tmp_path / "d").mkdir()
+    path = _droop(tmp_path / "d", ('frequency = "60 kHz"', 'frequency = "60 kHz"\nregulation = "closed_loop"'))
+    d = design(load_drive(path))
+    assert d.hold.regulation == "closed_loop" and d.armature.seated_in_peak_corners < d.armature.corners
+    hot = max(c.coil_temp_c for c in d.corners)
+    (cap_path, cap), = loop_captures(tmp_path, d, [(d.drive.supply.nominal, hot, None)], hold_time=0.01)
+    assert int(EventKind.FAULT) not in [int(e.kind) for e in cap.events]
+    rows = checked_rows(cap_path, path, hot)
+    assert {n for n, i in rows.items() if i["status"] == "pass"} >= {
+        "pull_in_time", "peak_duration", "hold_mean", "release_time"}
+
+
 def test_emulated_drive_passes_check(tmp_path, thin):
     """The virtual bench device runs the drooping drive's actuation (the boost, the
     threshold, the armature into the hold): its capture passes ``check`` (plumbing: the
