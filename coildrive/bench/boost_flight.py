@@ -15,6 +15,16 @@ it. Once the armature rests on the seat the device goes on with the seated coil'
 closed form, as it does after an unboosted pull-in; once it rests open with no current
 after the driver switched off, the flight is over too.
 
+On a drooping main supply (``supply.source_resistance``) the flight carries the main bus
+as the design and ``simulate`` do (:func:`coildrive.model.armature_boost.boosted_pull_in`
+with ``bus0``, :func:`coildrive.model.waveform.armature_actuation`): its bulk capacitor a
+sixth state of the flight from the hand-over on (the first stretch off the boost), starting
+at the source's voltage (nothing drew from it during the peak), the boost converter's draw
+from the hand-over on taken out of the source (:func:`coildrive.model.waveform.converter_fed`:
+the larger of the hand-over current and the seated coil's steady PWM top at the firmware's
+duty). :attr:`BoostFlight.bus` is the bus, V, which the driver's supply conversions read
+while the flight lasts; :attr:`BoostFlight.seat_bus` the bus where it rested on the seat.
+
 Units: SI (s, A, V, V*s, m, m/s).
 """
 
@@ -41,12 +51,25 @@ class BoostFlight:
         the hold's (switch on from the main supply, the hold's off path) and the release's
         (the off path once the driver opens everything).
     l_scale : the coil's inductance factor (the device's tolerance scale x its fault's).
+    setting : on a drooping main supply, the hold's ``(duty, frequency Hz)`` the firmware
+        runs at the device's point (the converter's draw from the hand-over on); else unused.
     """
 
-    def __init__(self, drive, hold, release, l_scale: float):
+    def __init__(self, drive, hold, release, l_scale: float, setting: tuple[float, float] | None = None):
         s = drive.supply
+        self.drive, self._setting = drive, setting
         self.p_hold = params_from_loop(drive.armature, hold, l_scale)
         self.p_release = params_from_loop(drive.armature, release, l_scale)
+        #: on a drooping main supply: the hold's points on the bus (the converter's draw
+        #: taken out at the hand-over: ``p_main``), else ``None``
+        self._p_bus = (params_from_loop(drive.armature, hold, l_scale, bus=(s.source_resistance, s.capacitance))
+                       if s.droops else None)
+        self.p_main = None
+        self.bus = float(hold.v_on)          # the main bus, V (the source's while not drawn)
+        self.seat_bus: float | None = None   # V where the armature came to rest on the seat
+        #: the flight's stretches as flown since the peak's start: ``(from s, to s, what)``,
+        #: what ``"boost"``, ``"on"`` (the main supply) or the off path (``"hold"``/``"release"``)
+        self.flown: list[tuple[float, float, str]] = []
         self._boost = (float(s.boost_capacitance), float(s.boost_resistance))
         self.y: np.ndarray | None = None     # lambda, x, v, q, sq while in flight, else None
         self.u = float(s.boost)              # the boost capacitor, V
@@ -63,15 +86,33 @@ class BoostFlight:
         """The peak's start from rest, the boost capacitor at ``u`` V."""
         self.y = np.array([0.0, float(self.p_hold.stroke[0]), 0.0, 0.0, 0.0])
         self.u, self.state, self.live, self.current = float(u), "open", False, 0.0
+        self.bus, self.p_main, self.seat_bus, self.flown = float(self.p_hold.v_on[0]), None, None, []
+
+    def _main(self):
+        """The hold's points off the boost: on a drooping main supply the bus's, the
+        converter's draw from this hand-over on (module docstring), else the stiff supply's."""
+        if self._p_bus is None:
+            return self.p_hold
+        if self.p_main is None:
+            from ..model.waveform import converter_fed
+
+            self.p_main = converter_fed(self.drive, self._p_bus, self.current, *self._setting)
+        return self.p_main
 
     def _fly(self, p, schedule, t0: float, boost: bool, release=None):
         droops = boost and self._boost[0] > 0
-        start = np.append(self.y, self.u) if droops else self.y
+        on_bus = not boost and self._p_bus is not None
+        start = np.append(self.y, self.u) if droops else np.append(self.y, self.bus) if on_bus else self.y
         tr = simulate(p, schedule, state=self.state, start=start, live=self.live, t0=t0, points=POINTS,
                       release_params=release)
         self.y = np.array([tr.flux[-1], tr.position[-1], tr.velocity[-1], tr.charge[-1], tr.square[-1]])
         if droops:
             self.u = float(tr.bus[-1])
+        if on_bus:
+            self.bus = float(tr.bus[-1])
+            seats = [t for t, name in tr.log if name == "seat"]
+            if seats and tr.state == "seated":   # (a piece ends at the seat: a sample there)
+                self.seat_bus = float(np.interp(seats[-1], tr.time, tr.bus))
         self.state = tr.state
         self.current = float(tr.current[-1])
         self.live = self.current > 0.0
@@ -94,8 +135,11 @@ class BoostFlight:
         schedule = [] if boost else [(cut, True)] if cut > t0 else []
         if t1 > cut:
             schedule.append((t1, False, None, path))
+        edges = [t0 if not boost else cut] + [seg[0] for seg in schedule]
+        self.flown += ([(t0, cut, "boost")] if boost and cut > t0 else []) + [
+            (a, seg[0], "on" if seg[1] else path) for a, seg in zip(edges, schedule)]
         if schedule:
-            t, i = self._fly(self.p_hold, schedule, cut if boost else t0, False, self.p_release)
+            t, i = self._fly(self._main(), schedule, cut if boost else t0, False, self.p_release)
             times.append(t)
             amps.append(i)
         t, i = np.concatenate(times), np.concatenate(amps)

@@ -52,7 +52,8 @@ run is :mod:`coildrive.model.flux_boost`'s, stepped from the current and the cap
 voltage at its switch-on. With an ``[armature]`` on the boosted peak the armature is flown
 as the driver switches (:mod:`coildrive.bench.boost_flight`: the boost, the threshold's
 conversion, the hold's PWM edges) until it rests on the seat, then the seated coil's closed
-form.
+form; on a drooping main supply the flight carries the main bus from the hand-over (the
+converter's draw out of the source), which the supply conversions read until the seat.
 
 A full bridge's mixed-decay hold (``hold.fast_fraction``): each off-time decays through
 the fast path (all four open) up to the timer count the driver gives through its
@@ -186,7 +187,11 @@ class FirmwareDevice(LineOutput):
         self._arm = None
         if design.boost is not None and faulty.armature is not None and o.fault != "open":
             from .boost_flight import BoostFlight
-            self._arm = BoostFlight(faulty, self._loops["hold"], self._loops["release"], l_scale)
+            setting = None
+            if faulty.supply.droops:   # the converter's draw off the bus: the hold the firmware runs here
+                from ..design import firmware_setting
+                setting = (firmware_setting(design, self.supply, self.coil_temp)[0], design.hold.frequency_hz)
+            self._arm = BoostFlight(faulty, self._loops["hold"], self._loops["release"], l_scale, setting)
         self._flight = None if self._arm is not None else self._pull_in_flight(faulty, design, l_scale)
         self._flight_t0: float | None = None
         #: an armature on a full bridge on the drooping bus: the release run's
@@ -203,8 +208,7 @@ class FirmwareDevice(LineOutput):
         _, self._apc = adc_scaling(drive)
         self._vpa = board.sense.resistance * board.sense.gain
         self._full = 2**board.adc.bits - 1
-        self._supply_code = int(min(max(math.floor(self.supply / board.supply_sense.divider
-                                                   / board.adc.reference * 2**board.adc.bits), 0), self._full))
+        self._supply_code = self._volts_code(self.supply)
         from ..design import firmware_setting  # the peak the driver runs at this supply
 
         self._peak_s = firmware_setting(design, self.supply)[1]
@@ -277,24 +281,18 @@ class FirmwareDevice(LineOutput):
         self._supply_steps = sorted(self._supply_steps + [(float(at), float(supply))])
 
     def _apply_supply_steps(self, t: float) -> None:
-        b = self.drive.board
         while self._supply_steps and self._supply_steps[0][0] <= t:
             _, self.supply = self._supply_steps.pop(0)
             faulty, r_scale, l_scale = self._coil
             self._loops = {path: loop(faulty, self.supply, self.coil_temp, r_scale, l_scale, path)
                            for path in ("hold", "release")}
-            self._supply_code = int(min(max(math.floor(self.supply / b.supply_sense.divider
-                                                       / b.adc.reference * 2**b.adc.bits), 0), self._full))
+            self._supply_code = self._volts_code(self.supply)
             self._log.append(LogEntry(t, f"supply {self.supply:.4g} V"))
 
     @staticmethod
     def check_design(design) -> None:
         """``ValueError`` for a design the loop cannot run yet (see the module docstring)."""
         d = design.drive
-        if d.armature is not None and d.supply.boosted and d.supply.droops:
-            raise ValueError("firmware in the loop does not run a moving [armature] on a boosted peak on a "
-                             "drooping main supply (supply.source_resistance) yet (its device flies the hold "
-                             "from a stiff main supply): emulate it without --firmware (the model's device)")
         if d.armature is not None and d.supply.boosted and d.coil.eddy_resistance:
             raise ValueError("firmware in the loop does not run a moving [armature] with an eddy-current "
                              "term on a boosted peak (supply.boost) yet: emulate it without --firmware "
@@ -336,6 +334,11 @@ class FirmwareDevice(LineOutput):
             return self._supply_code
         else:
             volts = float(np.interp(t - flight, self._flight[0], self._flight_bus))
+        return self._volts_code(volts)
+
+    def _volts_code(self, volts: float) -> int:
+        """The supply conversion's code of a bus at ``volts`` V (the board's divider and ADC;
+        the converter truncates)."""
         b = self.drive.board
         return int(min(max(math.floor(volts / b.supply_sense.divider / b.adc.reference * 2**b.adc.bits),
                            0), self._full))
@@ -737,7 +740,7 @@ class FirmwareDevice(LineOutput):
         for tt in [x for x in ticks if x < s]:
             self._do_tick(tt)
         code = int(self._codes(np.array([float(sensing(first, on_end)(s))]))[0])
-        self.lib.fil_conversion(code, self._supply_code)
+        self.lib.fil_conversion(code, self._supply_code if fl.p_main is None else self._volts_code(fl.bus))
         new = int(self.lib.fil_outputs())
         if not new >> 24 & 1 and on_end > s:
             on_end = s                      # the switch output is disabled at once
@@ -757,7 +760,8 @@ class FirmwareDevice(LineOutput):
         if self.trace is not None:      # the period's mean: midpoint rule, 64 points
             x = t0 + (np.arange(64) + 0.5) * (T / 64)
             self.trace.append((t0, float(np.mean(np.where(x < s, first(x), second(x)))), self._state))
-        fl.settle(bool(new >> 24 & 1))
+        if fl.settle(bool(new >> 24 & 1)) and fl.seat_bus is not None and fl.p_main is not None:
+            self._log.append(LogEntry(t0 + T, f"seated on the main bus at {fl.seat_bus:.6g} V"))
         self._t = t0 + T
         self._take_frames()
         return T

@@ -738,7 +738,7 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
             start = [head.flux[-1], head.position[-1], head.velocity[-1], head.charge[-1], head.square[-1]]
             on_bus = p
             if main is not None:
-                on_bus = _converter_fed(drive, main, float(head.current[-1]), duty, frequency)
+                on_bus = converter_fed(drive, main, float(head.current[-1]), duty, frequency)
                 start.append(supply)
             rest = simulate(on_bus, schedule[1:], state=head.state, start=np.array(start),
                             live=bool(head.current[-1] > 0), method=method, points=points, stop=released,
@@ -830,7 +830,7 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
                          trace) if s.boosted else w
 
 
-def _converter_fed(drive: Drive, main, i_hand: float, duty: float, frequency: float):
+def converter_fed(drive: Drive, main, i_hand: float, duty: float, frequency: float):
     """The main bus's points ``main`` (one point) with the boost converter's draw from the
     hand-over on taken out of the source: ``V_s - R_s I_conv``
     (:func:`coildrive.model.supply.converter_current`, the coil at most the larger of the
