@@ -1558,8 +1558,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                                       "a boost only)")
     elif armature is not None and supply.droops and switch.topology == "full_bridge":
         key, why = "supply.source_resistance", ("a drooping main supply and a moving armature on a full bridge "
-                                                "(the hold's flight on the bus is a linear coil's on one switch, "
-                                                "an eddy term too)")
+                                                "(the armature's release into the bus with the boost converter "
+                                                "drawing from it is not modelled; one switch is, an eddy term too)")
     elif armature is not None and supply.droops and freewheel.type == "clamp":
         key, why = "freewheel.type", ("a drooping main supply, a moving armature and a clamp across the "
                                       "switch together (the clamp's off-times draw from the bus while the "
