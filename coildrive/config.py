@@ -1517,7 +1517,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     an eddy term; on a full bridge every turn-off's fast decay returns into it, the boost
     converter idle or drawing: :mod:`coildrive.design.bridge_bus`, a linear coil or a curve,
     or an eddy term on a supply that sinks; with a moving armature, a linear coil on
-    one switch without a clamp, the hold's flight on it), a PWM
+    one switch without a clamp, an eddy term too, the hold's flight on it; not on a full
+    bridge), a PWM
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
     mode), a peak that ends at its threshold. A moving armature
     (:mod:`coildrive.model.armature_boost`): a linear coil (an eddy term too), a
@@ -1555,10 +1556,10 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = "freewheel.type", ("a latching coil's pulses from the boost with a clamp across the switch "
                                       "(the clamp's draw after each pulse is the main bus's: modelled without "
                                       "a boost only)")
-    elif armature is not None and supply.droops and (coil.eddy_resistance or switch.topology == "full_bridge"):
-        key, why = "supply.source_resistance", ("a drooping main supply and a moving armature with an eddy-current "
-                                                "term or on a full bridge (the hold's flight on the bus is a plain "
-                                                "coil's on one switch)")
+    elif armature is not None and supply.droops and switch.topology == "full_bridge":
+        key, why = "supply.source_resistance", ("a drooping main supply and a moving armature on a full bridge "
+                                                "(the armature's release into the bus with the boost converter "
+                                                "drawing from it is not modelled; one switch is, an eddy term too)")
     elif armature is not None and supply.droops and freewheel.type == "clamp":
         key, why = "freewheel.type", ("a drooping main supply, a moving armature and a clamp across the "
                                       "switch together (the clamp's off-times draw from the bus while the "
@@ -1583,8 +1584,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "full bridge, a "
                          "diode/zener/resistor freewheel (split decay too) or a clamp, a stiff "
                          "main supply (or a drooping one; on a full bridge a linear coil or a curve, or an "
-                         "eddy term on a supply that sinks; with [armature] a linear coil on one switch, no "
-                         "clamp), a "
+                         "eddy term on a supply that sinks; with [armature] a linear coil on one switch, an "
+                         "eddy term too, no clamp), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
                          "with [armature]: no mixed decay, no restitution or [duty] with an eddy term; a "
                          "latching coil: a linear coil and its reset winding, a stiff main supply, no [armature]")

@@ -94,3 +94,65 @@ def boosted_events(g: dict, trip: float):
         return y[0] - trip
     at_trip.terminal, at_trip.direction = True, 1
     return start, at_trip
+
+
+def hold_on_bus(rhs, seat, t: float, y: list, free: bool, trip: float, duty: float, period: float,
+                t_end: float, opts: dict, out: dict, fix=None) -> list:
+    """The PWM hold on the main bus for a solve_ivp reference, from the hand-over at ``t`` =
+    ``trip`` s (state ``y``, its row 3 the bus ``u``): ``rhs(mode, free)`` -> ``f(t, y)``
+    for ``mode`` "on" / "off", ``seat`` the seat's event (``free``: the armature not yet
+    seated), periods of ``period`` s on for ``duty`` until ``t_end`` s. The lowest bus is
+    found at the pieces' ends and at the events where ``du/dt`` turns from falling to
+    rising. Into ``out``: ``seat``, ``seat_bus`` (where it seats in the hold), ``low``,
+    ``low_t``; ``fix(y)`` adjusts a piece's end state (e.g. the current held at zero).
+    Returns the state at ``t_end``."""
+    from scipy.integrate import solve_ivp
+
+    low, low_t = y[3], t
+    k = 0
+    while t < t_end:
+        for mode, stop in (("on", trip + (k + duty) * period), ("off", trip + (k + 1) * period)):
+            stop = min(stop, t_end)
+            while t < stop:
+                f = rhs(mode, free)
+
+                def turn(tt, yy, f=f):   # du/dt from falling to rising: a minimum of the bus
+                    return f(tt, yy)[3]
+                turn.direction = 1
+                sol = solve_ivp(f, (t, stop), y, events=[turn] + ([seat] if free else []), **opts)
+                for tm, ym in zip(sol.t_events[0], sol.y_events[0]):
+                    if ym[3] < low:
+                        low, low_t = float(ym[3]), float(tm)
+                t, y = float(sol.t[-1]), list(sol.y[:, -1])
+                if fix is not None:
+                    fix(y)
+                if y[3] < low:
+                    low, low_t = y[3], t
+                if free and sol.t_events[1].size:
+                    out["seat"], out["seat_bus"], free = t, y[3], False
+                    y[1] = y[2] = 0.0
+        k += 1
+    out.update(low=low, low_t=low_t)
+    return y
+
+
+def boost_peak(rhs, start, at_trip, seat, y: list, t_peak: float, opts: dict, out: dict):
+    """The boosted peak for a solve_ivp reference from switch-on (state ``y``): at rest on
+    the open stop until ``start``, in flight, and where ``seat`` comes first at rest on the
+    seat (``out["seat"]``), each until ``at_trip`` or ``t_peak`` s; ``rhs(mode, free)`` with
+    ``mode`` "boost". Returns ``(t, y, free)`` at the end of the peak (``out["trip"]`` = t)."""
+    from scipy.integrate import solve_ivp
+
+    sol = solve_ivp(rhs("boost", False), (0, t_peak), y, events=[start, at_trip], **opts)
+    t, y = float(sol.t[-1]), list(sol.y[:, -1])
+    free = bool(sol.t_events[0].size) and not sol.t_events[1].size
+    if free:
+        sol = solve_ivp(rhs("boost", True), (t, t_peak), y, events=[at_trip, seat], **opts)
+        t, y = float(sol.t[-1]), list(sol.y[:, -1])
+        if sol.t_events[1].size:   # seated in the peak: on to the threshold at rest
+            out["seat"], free = t, False
+            y[1] = y[2] = 0.0
+            sol = solve_ivp(rhs("boost", False), (t, t_peak), y, events=[at_trip], **opts)
+            t, y = float(sol.t[-1]), list(sol.y[:, -1])
+    out["trip"] = t
+    return t, y, free

@@ -21,7 +21,8 @@ with an eddy term the terminal current, what the sense sees):
   holds the current back, and ``L(x) >= L_open``), so that bounds the end current and, with
   the capacitor's state at the trip, the energy drawn.
 
-On a drooping main supply (``source_resistance``, a linear coil on one switch) the hold runs
+On a drooping main supply (``source_resistance``, a linear coil on one switch, an eddy term
+too) the hold runs
 on the main bus from the hand-over, its capacitor a state of the flight
 (:func:`~coildrive.model.armature_boost.boosted_pull_in` with ``bus0``: the source's voltage,
 nothing drew from it during the peak), with the boost converter's draw from the hand-over
@@ -140,18 +141,21 @@ def _end(drive: Drive, pb: ArmatureParams, pin: PullInBatch, i_trip: float):
             np.where(hit, u, pb.v_on), np.where(hit, boost_energy(pb, y), nan))
 
 
-def runs(drive: Drive, p: ArmatureParams, duty, period, i_top, thresholds: tuple[float, float]) -> BoostRuns:
+def runs(drive: Drive, p: ArmatureParams, duty, period, i_top, thresholds: tuple[float, float],
+         bus_top=None) -> BoostRuns:
     """The runs of the module docstring at the points of ``p`` (the hold's loop on the main
     supply), the hold's ``duty`` and ``period`` s (per point) and its steady ripple top
-    ``i_top`` A; ``thresholds``: the threshold and the highest trip current, A
-    (:func:`coildrive.design.boost.threshold`)."""
+    ``i_top`` A (the magnetising current's with an eddy term); ``thresholds``: the threshold
+    and the highest trip current, A (:func:`coildrive.design.boost.threshold`). ``bus_top``:
+    the most current the hold draws from the bus (A per point; with an eddy term the
+    terminal current's top, which steps above ``i_top`` at each switch-on), default ``i_top``."""
     i_th, i_trip = thresholds
     low, high = _boost(drive, p, False), _boost(drive, p, True)
     long_time, _, low_boost, energy_low = _end(drive, low, pull_in(low, trip=i_trip), i_trip)
     finite = long_time[np.isfinite(long_time)]
     until = drive.pull_in.margin * (float(np.max(finite)) if finite.size else 0.0)
     end_time, end_current, end_boost, energy_high = _end(drive, high, pull_in(high, trip=i_trip), i_trip)
-    p_hold, bus0 = main_bus(drive, p, np.maximum(end_current, i_top))
+    p_hold, bus0 = main_bus(drive, p, np.maximum(end_current, i_top if bus_top is None else bus_top))
     slow = boosted_pull_in(low, p_hold, i_th, duty, period, until, i_top, bus0=bus0, orbit=False)
     fast_time = pull_in(high, trip=i_th).trip_time
     most = None
@@ -278,7 +282,9 @@ def sampled_pull_in(drive: Drive, res, v_factor, c_factor, duty, timeout):
                       s.boost_resistance)
     per_point = (lambda x: np.ravel(np.broadcast_to(np.asarray(x, float), (n,))))
     top = per_point(res.hold.i_max)
-    p_hold, bus0 = main_bus(drive, p, np.maximum(res.armature.boost.end_current, top))
+    t_max = getattr(res.hold, "terminal_max", None)   # (an eddy term: what the bus feeds)
+    draw = top if t_max is None else np.maximum(top, per_point(t_max))
+    p_hold, bus0 = main_bus(drive, p, np.maximum(res.armature.boost.end_current, draw))
     pin = boosted_pull_in(pb, p_hold, threshold(drive)[0], per_point(duty), per_point(res.hold.period),
                           per_point(timeout), top, bus0=bus0, orbit=False)
     return replace(res, pull_in_time=pin.seat_time.reshape(np.shape(res.pull_in_time)))

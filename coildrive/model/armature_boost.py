@@ -27,8 +27,9 @@ current at the period's conversion (the flight's state there).
 On a drooping main supply (``p_hold.droops``: ``source_resistance`` and ``capacitance``
 behind the hold's switch) the main bus feeds the hold from the hand-over on, its bulk
 capacitor a sixth state of the flight (:class:`~coildrive.model.armature_flight._Rhs`:
-``C du/dt = (V_s - u)/R_s - i`` while the switch is on, the freewheel path drawing nothing),
-starting at ``bus0`` (the source's voltage: the main supply's diode blocked during the
+``C du/dt = (V_s - u)/R_s - i`` while the switch is on, the freewheel path drawing nothing;
+with an eddy term ``i`` the terminal current the bus feeds, the branch behind the loop's
+Thevenin pair, the freewheel blocking at the terminal current's zero), starting at ``bus0`` (the source's voltage: the main supply's diode blocked during the
 peak, nothing drew from it); the lowest bus is tracked through the flight, and from the
 seat on (or from the hand-over, where the armature seated within the peak) the seated
 coil's PWM on the bus is exact period by period
@@ -54,7 +55,6 @@ from .armature import (BOUND, MAX_BOUNCES, OPEN, REST_FRACTION, SEAT, SEATED, ST
 from .armature_flight import fly_mixed, is_stiff
 from .armature_runs import PullInBatch, pull_in
 from . import supply as bus_model
-from .rl import decay_current
 
 #: Most PWM edges the hold after the threshold is followed through (never hang; the time
 #: bound ends it first at any frequency the timer makes in practice).
@@ -195,7 +195,9 @@ def seated_hold_bus(p: ArmatureParams, t_hand, t_seat, i_seat, u_seat, duty, per
     the hold's periods of ``period`` s (on for ``duty`` of each) count from the hand-over
     at ``t_hand`` s. The rest of the period the seat came in (its on-time on the bus,
     :func:`~coildrive.model.supply.lowest_from`; its off-time the coil's own RL decay while
-    the bus recovers through ``R_s``), then :func:`~coildrive.model.supply.hold_from` from
+    the bus recovers through ``R_s``; with an eddy term ``i_seat`` is the magnetising
+    current and the off-time the branch's decay, :func:`~coildrive.model.supply.off_current`),
+    then :func:`~coildrive.model.supply.hold_from` from
     the next period's start until the orbit repeats. ``when`` from switch-on."""
     b = p.bus(False)
     t_on = duty * period
@@ -209,7 +211,7 @@ def seated_hold_bus(p: ArmatureParams, t_hand, t_seat, i_seat, u_seat, duty, per
     i1, u1 = np.where(on, i1, i_seat), np.where(on, u1, u_seat)
     t_next = start + period
     dt_off = np.maximum(t_next - np.maximum(t_seat, start + t_on), 0.0)
-    i2 = decay_current(dt_off, i1, p.r_off, p.v_off, p.l_closed)
+    i2 = bus_model.off_current(dt_off, i1, p.r_off, p.v_off, b)   # (an eddy term: the branch's decay)
     u2 = b.v_s + (u1 - b.v_s) * np.exp(-dt_off / (p.source_resistance * p.capacitance))
     v_h, t_h, settled = bus_model.hold_from(b, i2, u2, duty, period, p.r_off, p.v_off)
     lower = v_h < v_low

@@ -446,7 +446,7 @@ def hold_from(b: Bus, i0, v0, duty, period, r_off, v_off) -> tuple[np.ndarray, n
         low[k] = np.where(lower, v_low, low[k])
         when[k] = np.where(lower, n * per[k] + t_low, when[k])
         i_on, v_on = state_from(t_on[k], sub, i[k], v[k])
-        i_next = _off_current(t_off[k], i_on, r_off[k], v_off[k], sub)
+        i_next = off_current(t_off[k], i_on, r_off[k], v_off[k], sub)
         v_next = sub.v_s + (v_on - sub.v_s) * recover[k]
         still = ((np.abs(i_next - i[k]) > HOLD_SETTLED * np.maximum(np.abs(i[k]), 1e-6))
                  | (np.abs(v_next - v[k]) > HOLD_SETTLED * np.abs(v[k])))
@@ -455,7 +455,7 @@ def hold_from(b: Bus, i0, v0, duty, period, r_off, v_off) -> tuple[np.ndarray, n
     return low.reshape(shape), when.reshape(shape), ~live.reshape(shape)
 
 
-def _off_current(t, i0, r_off, v_off, b: Bus) -> np.ndarray:
+def off_current(t, i0, r_off, v_off, b: Bus) -> np.ndarray:
     """The (magnetising) current (A) after ``t`` s of a hold's off-time from ``i0`` A: the
     plain coil's RL decay (held at zero), or where ``b`` has an eddy term the magnetising
     branch's (:func:`coildrive.model.eddy.decay_current`)."""

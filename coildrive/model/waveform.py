@@ -618,7 +618,8 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
         from .armature_boost import boost_params
         p_peak = boost_params(p, s.boost, s.boost_capacitance, s.boost_resistance)
     #: a boosted peak on a drooping main supply: the hold and the release on the main bus
-    main = (params_from_loop(drive.armature, lp, l_factor, bus=(s.source_resistance, s.capacitance))
+    main = (params_from_loop(drive.armature, lp, l_factor, drive.coil.eddy_resistance,
+                             bus=(s.source_resistance, s.capacitance))
             if s.boosted and s.droops and hold is None else None)
     main_bus = None
     split = split_decay(drive)
@@ -674,6 +675,23 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
 
     schedule += release_segments(t_off)
     released = (lambda r: r.t >= t_off and r.state == "open" and not r.live)
+
+    def after_peak(head, live: bool):
+        """``(the run joined, the main bus or None)``: on from the peak's run ``head`` (its end
+        state, ``live`` the freewheel conducting) on the stiff bus, or after a boost on a
+        drooping main supply on the main bus from the source's voltage."""
+        start = [head.flux[-1], head.position[-1], head.velocity[-1], head.charge[-1], head.square[-1]]
+        on_bus = p
+        if main is not None:
+            on_bus = converter_fed(drive, main, float(head.current[-1]), duty, frequency)
+            start.append(supply)
+        rest = simulate(on_bus, schedule[1:], state=head.state, start=np.array(start), live=live,
+                        method=method, points=points, stop=released, release_params=p_rel, t0=peak_time)
+        bus = None
+        if main is not None:   # (with an eddy term _joined keeps the rest's first row: the step)
+            bus = np.concatenate([np.full(head.time.size, float(supply)), rest.bus[0 if p.eddy is not None else 1:]])
+        return _joined(head, rest, float(p.v_on[0])), bus
+
     tr = None
     if hold is not None and (p.eddy is not None or mixed is not None or peak_time <= 0):
         raise ValueError("a hold switched by thresholds with an [armature] takes no eddy term "
@@ -735,29 +753,16 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
         if tr is None and p_peak is not p:
             # the peak on the drooping bus, then on from its end state on the stiff bus (after
             # a boost on a drooping main supply: on the main bus, from the source's voltage)
-            start = [head.flux[-1], head.position[-1], head.velocity[-1], head.charge[-1], head.square[-1]]
-            on_bus = p
-            if main is not None:
-                on_bus = converter_fed(drive, main, float(head.current[-1]), duty, frequency)
-                start.append(supply)
-            rest = simulate(on_bus, schedule[1:], state=head.state, start=np.array(start),
-                            live=bool(head.current[-1] > 0), method=method, points=points, stop=released,
-                            release_params=p_rel, t0=peak_time)
-            tr = _joined(head, rest, float(p.v_on[0]))
-            if main is not None:
-                main_bus = np.concatenate([np.full(head.time.size, float(supply)), rest.bus[1:]])
+            tr, main_bus = after_peak(head, bool(head.current[-1] > 0))
     if tr is None and hold is not None:
         raise ValueError("the armature is not seated at the end of the peak, or the hold's "
                          "current falls below the stay current: a hold switched by thresholds "
                          "with the armature in flight is not modelled")
     if tr is None and peak_time > 0 and p_peak is not p and p.eddy is not None:
         # an eddy term on the drooping bus: the peak on it, then on from its end state on
-        # the stiff bus (the terminal current steps with the bus there, a row each side)
-        head = simulate(p_peak, schedule[:1], method=method, points=points)
-        rest = simulate(p, schedule[1:], state=head.state, start=np.array(
-            [head.flux[-1], head.position[-1], head.velocity[-1], head.charge[-1], head.square[-1]]),
-            live=True, method=method, points=points, stop=released, release_params=p_rel, t0=peak_time)
-        tr = _joined(head, rest, float(p.v_on[0]))
+        # the stiff bus (the terminal current steps with the bus there, a row each side);
+        # after a boost on a drooping main supply on the main bus, from the source's voltage
+        tr, main_bus = after_peak(simulate(p_peak, schedule[:1], method=method, points=points), True)
     if tr is None:
         tr = simulate(p, schedule, method=method, points=points, stop=released,
                       release_params=p_rel)
@@ -835,10 +840,11 @@ def converter_fed(drive: Drive, main, i_hand: float, duty: float, frequency: flo
     hand-over on taken out of the source: ``V_s - R_s I_conv``
     (:func:`coildrive.model.supply.converter_current`, the coil at most the larger of the
     hand-over current ``i_hand`` A and the seated coil's steady PWM top at ``duty`` and
-    ``frequency`` Hz)."""
+    ``frequency`` Hz; with an eddy term the terminal current's top too, what the bus feeds)."""
     from .pwm import pwm_steady_state
 
-    top = pwm_steady_state(duty, frequency, main.v_on, main.r_on, main.r_off, main.v_off, main.l_closed).i_max
+    ss = pwm_steady_state(duty, frequency, main.v_on, main.r_on, main.r_off, main.v_off, main.coil_closed)
+    top = ss.i_max if ss.terminal_max is None else np.maximum(ss.i_max, ss.terminal_max)
     s = drive.supply
     i_conv = bus_model.converter_current(main.v_on, s.source_resistance, s.converter_draw,
                                          np.maximum(i_hand, top))
