@@ -283,3 +283,39 @@ def test_host_commands_are_served_through_the_c_encoder(tmp_path, firmware, monk
     fs = d.drive.board.adc.sample_rate
     held = (ev[EventKind.OFF] - ev[EventKind.PEAK_END]) / fs
     assert abs(held - 0.020) <= 2 / d.drive.board.tick.rate, f"held {held * 1e3:.3f} ms for START 20000 us"
+
+
+@pytest.mark.compiler
+def test_a_board_without_a_supply_sense_emulates_and_checks(tmp_path):
+    """A board file may leave out ``[supply_sense]`` (the driver then checks no supply: the
+    header's supply codes are 0). The model's device and the compiled driver in the loop
+    both run it (no SUPPLY reading to turn into volts: `check` takes the drive's nominal
+    supply) and `check` passes; both once stopped with a traceback on the missing divider."""
+    import re
+
+    from coildrive.bench.check import check_capture
+    from coildrive.bench.device import DeviceOptions, VirtualDevice
+    from coildrive.config import load_drive
+    from coildrive.design import design
+    from driver_harness import loop_captures
+    from test_emulator_device import capture_of, run as run_device
+
+    src = (EXAMPLES.parent / "boards" / "lab-m32-zener.toml").read_text()
+    board = tmp_path / "no-sense.toml"
+    board.write_text(re.sub(r"\[supply_sense\]\n[^\[]*", "", src))
+    assert "supply_sense" not in board.read_text()
+    drive = tmp_path / "drive.toml"
+    text = (EXAMPLES / "gate-valve-highside-24v.toml").read_text()
+    name = re.search(r'^board = "([^"]+)"', text, re.M).group(1)
+    drive.write_text(text.replace(f'board = "{name}"', f'board = "{board}"'))
+    d = design(load_drive(drive))
+    assert d.drive.board.supply_sense is None
+    v, t = d.drive.supply.nominal, 20.0
+    dev = VirtualDevice(d.drive, DeviceOptions(supply=v, coil_temp=t, noise_codes=1, seed=3), design=d)
+    msgs, _ = run_device(dev, 0.05 + 2 * dev.period, step=0.05)
+    rep = check_capture(capture_of(msgs, tmp_path / "model.cdcap"), d, coil_temp=t)
+    assert rep.ok and "supply.nominal" in rep.point.supply_from, [(i.name, i.status) for i in rep.items]
+    (_, cap), = loop_captures(tmp_path, d, [(v, t, None)])
+    assert EventKind.FAULT not in [e.kind for e in cap.events]
+    rep = check_capture(cap, d, coil_temp=t)
+    assert rep.ok, [(i.name, i.status, i.detail) for i in rep.items if i.status == "FAIL"]

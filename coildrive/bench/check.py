@@ -216,7 +216,7 @@ def operating_point(drive: Drive, capture: Capture, supply: float | None = None,
         v, v_from = float(meta.supply_v), ("scope supply column" if meta.link == "scope" else "capture header")
     else:
         codes = [e.value for e in capture.events if e.kind == EventKind.SUPPLY]
-        if codes:
+        if codes and drive.board.supply_sense is not None:   # (no divider: nothing to read)
             v = supply_from_codes(drive, codes, meta.adc_bits)
             v_from = f"capture SUPPLY events ({len(codes)}, through the board's divider)"
         else:

@@ -662,9 +662,10 @@ class VirtualDevice(LineOutput):
             start += n
             gap -= n
         board = self.drive.board
-        code = min(max(math.floor(self.supply / board.supply_sense.divider / board.adc.reference
-                                  * 2**board.adc.bits), 0), 2**board.adc.bits - 1)
-        items.append(_Item(rec.t_on, 1, Event(EventKind.SUPPLY, k_on & 0xFFFFFFFF, int(code)), data=True))
+        if board.supply_sense is not None:   # (a board without one reads no supply: no SUPPLY event)
+            code = min(max(math.floor(self.supply / board.supply_sense.divider / board.adc.reference
+                                      * 2**board.adc.bits), 0), 2**board.adc.bits - 1)
+            items.append(_Item(rec.t_on, 1, Event(EventKind.SUPPLY, k_on & 0xFFFFFFFF, int(code)), data=True))
         items.append(_Item(rec.t_on, 1, Event(EventKind.TEMPERATURE, k_on & 0xFFFFFFFF,
                                               int(round(self.coil_temp * 1000))), data=True))
         for e in self._events(rec):

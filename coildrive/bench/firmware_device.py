@@ -338,8 +338,11 @@ class FirmwareDevice(LineOutput):
 
     def _volts_code(self, volts: float) -> int:
         """The supply conversion's code of a bus at ``volts`` V (the board's divider and ADC;
-        the converter truncates)."""
+        the converter truncates). A board without ``[supply_sense]`` reads 0: the header's
+        supply-min and supply-max codes are 0 there too (the driver checks nothing)."""
         b = self.drive.board
+        if b.supply_sense is None:
+            return 0
         return int(min(max(math.floor(volts / b.supply_sense.divider / b.adc.reference * 2**b.adc.bits),
                            0), self._full))
 

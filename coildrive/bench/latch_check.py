@@ -216,7 +216,7 @@ def check_latch_capture(capture: Capture, design, tolerances: Tolerances | None 
                          "(set or reset) from the device's ON/OFF events")
     supply_codes = [e.value for e in capture.events if e.kind == EventKind.SUPPLY]
     bits = capture.meta.adc_bits or board.adc.bits
-    if supply is None and capture.meta.supply_v is None and supply_codes and \
+    if supply is None and capture.meta.supply_v is None and supply_codes and board.supply_sense is not None and \
             float(np.median(supply_codes)) >= 2**bits - 1:
         raise InputError(capture.source, "supply", "its SUPPLY readings are at the ADC's full scale (the bus "
                          f"is above the {board.adc.reference * board.supply_sense.divider:.4g} V the "

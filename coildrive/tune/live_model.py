@@ -45,7 +45,7 @@ def bench_point(drive: Drive, supply: float | None = None, coil_temp: float | No
     nom = nominal_point(drive)
     if supply is not None:
         v, v_from = float(supply), "--supply"
-    elif supply_codes:
+    elif supply_codes and drive.board.supply_sense is not None:   # (no divider: nothing to read)
         v = supply_from_codes(drive, supply_codes, adc_bits)
         v_from = f"device SUPPLY events ({len(supply_codes)}, through the board's divider)"
     else:
