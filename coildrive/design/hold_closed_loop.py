@@ -191,7 +191,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
             first = loop_pull_in(drive, first, loop_result, period,
                                  reading_range(env.sense_factor, gt)[1], switch_leg)
         pk = plan_peak(drive, env, first)
-        longer = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate
+        longer = 0.0 if pk.ticks is None else float(np.max(pk.long_time))   # the longest real peak
         if not cycling(drive) or longer <= heat_peak:
             break
         heat_peak = longer

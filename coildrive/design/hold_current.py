@@ -441,7 +441,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                                    "a voltage-mode hold" + ("" if drive.coil.eddy_resistance else
                                                             " (or the closed loop, which carries it)"))
         pk = plan_peak(drive, grid, first)
-        longer = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate
+        longer = 0.0 if pk.ticks is None else float(np.max(pk.long_time))   # the longest real peak
         if not cycling(drive) or longer <= peak_time:
             break
         peak_time = longer

@@ -96,7 +96,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
             table_args = dict(table_codes=codes, table_volts=volts, table_design=design_v)
         pk = plan_peak(drive, env, first, entry_res, code_low=code_low, code_high=code_high,
                        **(table_args or {}))
-        longer = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate
+        longer = 0.0 if pk.ticks is None else float(np.max(pk.long_time))   # the longest real peak
         if not cycling(drive) or longer <= peak_time:
             break
         peak_time = longer
