@@ -211,12 +211,13 @@ def budget_shapes() -> list[tuple[str, object]]:
     return shapes
 
 
-def loop_captures(tmp_path: Path, des, runs, hold_time: float = 0.03):
+def loop_captures(tmp_path: Path, des, runs, hold_time: float = 0.03, **options):
     """The reference driver of ``des`` written to ``tmp_path/fw`` and compiled with gcc, in
     the loop of :class:`~coildrive.bench.firmware_device.FirmwareDevice`: for each
     ``(supply V, coil temperature degC, fault or None)`` of ``runs`` the messages of 2.3
     device periods (two actuations) as a capture file ``tmp_path/<k>.cdcap``. Returns the
-    ``(path, Capture)`` of each run."""
+    ``(path, Capture)`` of each run; ``options``: more :class:`DeviceOptions` fields
+    (``first_actuation``: where the switch-on falls against the ticks and PWM periods)."""
     from coildrive.bench.device import DeviceOptions
     from coildrive.bench.firmware_device import FirmwareDevice
     from coildrive.codegen.host_build import build_firmware
@@ -230,7 +231,7 @@ def loop_captures(tmp_path: Path, des, runs, hold_time: float = 0.03):
     out = []
     for k, (supply, temp, fault) in enumerate(runs):
         dev = FirmwareDevice(des, lib, DeviceOptions(supply=supply, coil_temp=temp, fault=fault, noise_codes=1,
-                                                     seed=3, hold_time=hold_time))
+                                                     seed=3, hold_time=hold_time, **options))
         dev._now = 0.0
         msgs, _ = run_device(dev, 2.3 * dev.period, step=0.01)
         path = tmp_path / f"{k}.cdcap"

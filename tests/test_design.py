@@ -195,12 +195,15 @@ def test_hottest_coil_is_the_fixed_point_over_every_supply_and_ambient(drive):
 
 # --------------------------------------------------------------------------- switch voltage
 def _interrupt_currents(drive, d):
-    """Current at the end of the peak phase per corner, by the RL step (Hayt & Kemmerly)."""
+    """Current at the end of the longest real peak per corner, by the RL step (Hayt &
+    Kemmerly): the peak's ticks and a PWM period more (a PWM hold's driver switches on and
+    off at period starts, docs/firmware.md)."""
     sw, sense = drive.switch.on_resistance, drive.board.sense.resistance
+    longest = d.pull_in.peak_time_s + 1.0 / d.timer.frequency_hz
     out = []
     for c in d.corners:
         r_on = c.resistance_ohm + sw + sense
-        i_peak = c.supply_v / r_on * (1 - math.exp(-d.pull_in.peak_time_s * r_on / c.inductance_h))
+        i_peak = c.supply_v / r_on * (1 - math.exp(-longest * r_on / c.inductance_h))
         # the peak current is the largest the switch ever turns off (the hold ripple's top
         # is at most mean + ripple)
         assert i_peak >= c.hold_mean_current_a + c.hold_ripple_a, "precondition: peak > hold"

@@ -244,8 +244,14 @@ def test_regulated_hold_droops_as_the_voltage_mode_peak(tmp_path, hold, voltage_
     assert d.drive.thermal.resistance == 0
     assert d.pull_in.time_s == pytest.approx(v.pull_in.time_s, rel=1e-12)
     assert d.pull_in.peak_ticks == v.pull_in.peak_ticks
-    for key in ("lowest_bus_v", "droop_v", "lowest_bus_time_s", "capacitor_energy_j"):
-        assert getattr(d.supply, key) == pytest.approx(getattr(v.supply, key), rel=1e-12), key
+    # (a current-mode driver's longest real peak is half a PWM period shorter than a PWM
+    # hold's, docs/firmware.md: its bus droops a hair less)
+    rel = 1e-3 if hold == "current" else 1e-12
+    for key in ("lowest_bus_v", "droop_v", "capacitor_energy_j"):
+        assert getattr(d.supply, key) == pytest.approx(getattr(v.supply, key), rel=rel), key
+    assert d.supply.lowest_bus_v >= v.supply.lowest_bus_v - 1e-12
+    lead = 0.5 / d.timer.frequency_hz if hold == "current" else 0.0   # at the longest peak's end
+    assert d.supply.lowest_bus_time_s + lead == pytest.approx(v.supply.lowest_bus_time_s, rel=1e-12)
     def point(label):   # the corner without the envelope's coil-temperature part
         return re.sub(r", coil [^,]* \((cold|hot)\)", "", label)
     assert point(d.supply.lowest_bus_corner) == point(v.supply.lowest_bus_corner)

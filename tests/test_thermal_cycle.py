@@ -247,7 +247,7 @@ def hottest_point(d):
     b = drive.board
     timer = solve_timer(b.timer.clock, b.timer.bits, b.timer.prescaler_max, drive.hold.frequency,
                         drive.hold.frequency_tolerance, b.timer.prescalers)
-    plan = solve_hold(drive, timer, d.pull_in.peak_time_s)
+    plan = solve_hold(drive, timer, d.pull_in.longest_peak_s)   # the longest real peak heats
     heat = plan.heat
     k = next(i for i in range(len(heat.supply)) if heat.label(i) == d.thermal_cycle.cycle["corner"])
     tk = heat.tol.take([k])
@@ -262,7 +262,7 @@ def hottest_point_energies(d):
     where its cycle is hottest: the actuation's copper heat as the design computes it."""
     p, duty, f, amb = hottest_point(d)
     energies = on_energies(d.drive, p["supply"], p["r_factor"], p["l_factor"], duty, f, p["factors"],
-                           d.pull_in.peak_time_s)
+                           d.pull_in.longest_peak_s)   # the longest real peak heats
     return energies, amb
 
 
@@ -302,7 +302,7 @@ def test_freewheel_average_power(cycled):
     end_of_hold = cycled.release.turn_offs[0]
     assert end_of_hold["event"] == "end of hold"
     assert fw["release_power_w"] == pytest.approx(end_of_hold["energy_j"] * 0.2, rel=1e-12)
-    hold_share = (1.5 - cycled.pull_in.peak_time_s) / 5.0
+    hold_share = (1.5 - cycled.pull_in.longest_peak_s) / 5.0   # the hold after the longest real peak
     assert fw["hold_power_w"] == pytest.approx(cycled.hold.freewheel_power_w * hold_share, rel=1e-12)
     assert fw["average_power_w"] == pytest.approx(fw["release_power_w"] + fw["hold_power_w"], rel=1e-12)
 
@@ -355,7 +355,7 @@ def test_freewheel_average_power_against_the_rating(tmp_path, cycled, rating, ok
     # the Zener averages the releases x 0.2/s + its hold power x (1.5 s - peak) / 5 s;
     # checked against rating x 50 % (power derating, common practice)
     fw = cycled.thermal_cycle.freewheel
-    share = (1.5 - cycled.pull_in.peak_time_s) / 5.0
+    share = (1.5 - cycled.pull_in.longest_peak_s) / 5.0
     want = fw["release_elements_w"]["zener"] + cycled.hold.freewheel_elements_w["zener"] * share
     assert fw["elements_average_w"]["zener"] == pytest.approx(want, rel=1e-12)
     d = _variant(tmp_path, EXAMPLE.read_text() + f'\n[freewheel]\nzener_power_rating = "{rating}"\n')
@@ -387,7 +387,7 @@ def test_armature_peak_heat_through_the_open_inductance(tmp_path):
     l_open = drive.armature.inductance_open * lf
     r_on, r_c = float(lp.r_on[0]), float(lp.r_coil[0])
     want, _ = quad(lambda t: r_c * (v / r_on * (1 - math.exp(-t * r_on / l_open))) ** 2, 0.0,
-                   d.pull_in.peak_time_s, epsabs=1e-12)
+                   d.pull_in.longest_peak_s, epsabs=1e-12)   # the longest real peak heats
     assert c["peak_energy_j"] == pytest.approx(want, rel=1e-4), "scipy quad of the open-inductance rise"
 
 

@@ -13,6 +13,7 @@ import math
 import re
 from dataclasses import dataclass
 
+from ..design.peak import allowance_words
 from ..design.result import Design
 from ..errors import InputError
 from ..resources import data_dir
@@ -151,7 +152,7 @@ def _peak_comment(d: Design) -> str:
                 f"{d.boost.time_to_threshold_s * 1e3:.4g} ms x {p.margin:g}, +1 tick)")
     how = (f"worst pull-in {p.time_s * 1e3:.4g} ms x {p.margin:g}" if p.governed_by == "time margin" else
            f"{p.current_margin:g} x pull-in current by the shortest peak")
-    text = f"peak phase: {p.peak_time_s * 1e3:.4g} ms ({how}, +1 tick)"
+    text = f"peak phase: {p.peak_time_s * 1e3:.4g} ms ({how}, {allowance_words(p, d.drive.board.tick.rate)})"
     return text + ("; the longest entry of the peak table" if p.compensated else "")
 
 

@@ -19,6 +19,7 @@ from .evaluate import PointResults
 from .figures import OVER_CURRENT_FACTOR, worst
 from .result import (ELEMENT_NAMES, AdcThresholds, Check, HoldResult, PullInResult, ReleaseResult,
                      SplitDecayResult, TimerResult)
+from .peak import lag_governs
 from .supply import steady_current
 from .timer import TimerSetting
 
@@ -144,8 +145,12 @@ def _force_check(drive: Drive, pull_in: PullInResult) -> Check:
                      "supply or use a coil that draws more current")
     got = p.shortest_peak_current_a
     ok = got is not None and got >= need * (1 - 1e-9)
+    # one tick short (a phase may start anywhere in a tick), or the driver's switch lag
+    # below its ticks where that is longer (design/peak.py's switch_lag)
+    words = (f"{p.peak_ticks} ticks less the driver's switch lag" if lag_governs(p, drive.board.tick.rate)
+             else f"{p.peak_ticks - 1} ticks")
     return Check("pull_in_force", bool(ok),
-                 f"the shortest real peak ({p.peak_ticks - 1} ticks, {p.shortest_peak_s * 1e3:.4g} ms) "
+                 f"the shortest real peak ({words}, {p.shortest_peak_s * 1e3:.4g} ms) "
                  f"carries {got:.4g} A vs {need:.4g} A = {p.current_margin:g} x pull-in "
                  f"({p.current_margin ** 2:.3g} x the force) at {p.force_corner}; peak set by the "
                  f"{p.governed_by}")

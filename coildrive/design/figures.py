@@ -198,7 +198,8 @@ def pull_in_result(drive: Drive, grid: CornerGrid, res: PointResults, pk,
         governed_by=pk.governed_by,
         shortest_peak_s=float(np.asarray(pk.short_time)[k_f]) if reached else None,
         shortest_peak_current_a=float(np.asarray(shortest_current)[k_f]) if reached else None,
-        compensated=pk.table is not None, not_reached=pk.not_reached)
+        compensated=pk.table is not None, not_reached=pk.not_reached,
+        longest_peak_s=float(np.max(pk.long_time)) if reached else None)
 
 
 def hold_spread(grid: CornerGrid, res: PointResults) -> dict:

@@ -57,7 +57,7 @@ from .figures import (adc_thresholds, corners_of, hold_spread, loss_figures, pul
                       release_result, worst)
 from .hold_current import drooping_bus
 from .hold_voltage import MAX_PEAK_ROUNDS, _losses, _split_result, closing_checks, plot_points
-from .peak import plan_peak, shortest_peak_current
+from .peak import plan_peak, shortest_peak_current, switch_lag
 from .diagnostics import rise_check, seat_check
 from .eddy import eddy_result
 from .thermal_cycle import (HeatPoints, cycle_caution, cycle_result, cycling, thermal_cautions,
@@ -191,7 +191,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
             first = loop_pull_in(drive, first, loop_result, period,
                                  reading_range(env.sense_factor, gt)[1], switch_leg)
         pk = plan_peak(drive, env, first)
-        longer = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate
+        # the longest real peak: the ticks and the driver's switch lead
+        longer = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate + switch_lag(drive)[1]
         if not cycling(drive) or longer <= heat_peak:
             break
         heat_peak = longer

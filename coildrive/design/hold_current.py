@@ -69,7 +69,7 @@ from .boost import boost_outputs, boosted_points, boosted_turn_offs, peak_in_for
 from .bridge_bus import bridge_bus_checks, bridge_release
 from .diagnostics import rise_check, seat_check
 from .eddy import eddy_result
-from .peak import plan_peak, shortest_peak_current
+from .peak import plan_peak, shortest_peak_current, switch_lag
 from .supply import rise_current as bus_rise_current
 from .supply import rise_time as bus_rise_time
 from .supply import supply_checks, supply_result
@@ -441,7 +441,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                                    "a voltage-mode hold" + ("" if drive.coil.eddy_resistance else
                                                             " (or the closed loop, which carries it)"))
         pk = plan_peak(drive, grid, first)
-        longer = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate
+        # the longest real peak: the ticks and the driver's switch lead
+        longer = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate + switch_lag(drive)[1]
         if not cycling(drive) or longer <= peak_time:
             break
         peak_time = longer

@@ -41,7 +41,7 @@ from .figures import (ASSUMED_DIODE_DROP, adc_code, adc_thresholds, corners_of, 
                       loss_figures, path_name, pull_in_result, release_result, slow_hold_drive,
                       worst)
 from .mechanics import armature_checks, armature_result
-from .peak import plan_peak, shortest_peak_current
+from .peak import plan_peak, shortest_peak_current, switch_lag
 from .regulation import HoldPlan, coil_power_at, solve_hold, table_lookup, table_supplies
 from .result import ActuationPoint, Design, DutyTable, HoldResult, SplitDecayResult, TimerResult
 from .bridge_bus import bridge_bus_checks, bridge_release
@@ -96,7 +96,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
             table_args = dict(table_codes=codes, table_volts=volts, table_design=design_v)
         pk = plan_peak(drive, env, first, entry_res, code_low=code_low, code_high=code_high,
                        **(table_args or {}))
-        longer = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate
+        # the longest real peak: the ticks and the driver's switch lead
+        longer = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate + switch_lag(drive)[1]
         if not cycling(drive) or longer <= peak_time:
             break
         peak_time = longer

@@ -11,6 +11,17 @@ the longest of
   ``pull_in.current_margin`` x the pull-in current at the worst corner (the hot coil at
   the lowest supply), plus ``pull_in.settle_time``.
 
+The reference driver's switch follows its ticks through the PWM timer
+(docs/firmware.md): it goes on at the start of the PWM period after the conversion that
+follows the PEAK tick, and the peak ends at the conversion after the tick that enters HOLD
+(a current-mode hold: the comparator armed above its upper threshold trips at once) or at
+the start of the next period (a PWM hold: the first on-time at the hold's compare). With a
+tick and a conversion each anywhere within a PWM period ``T`` of the other, the full-on time
+is ``PEAK_TICKS`` ticks within -1.5 T .. +0.5 T (current mode) or -T .. +T (a PWM hold):
+:func:`switch_lag`. So the shortest real peak is the shorter of one tick and that lag below
+``PEAK_TICKS`` ticks, the ticks are chosen so that it still meets both requirements, and the
+longest real peak (the end current, the heat) is that lead above them.
+
 With an ``[armature]`` the pull-in time is the seat time of the moving-armature model,
 and the force margin is taken on the rise with the armature still open (the inductance
 before it moves).
@@ -36,6 +47,7 @@ from .figures import worst
 from .result import PeakTable
 from .boost import earliest_trip, slowest_peak
 from .supply import rise_current, rise_time, steady_current
+from .timer import conversion_period
 
 
 @dataclass(frozen=True)
@@ -59,11 +71,42 @@ class PeakPlan:
     governed_by: str
 
 
-def _ticks(seconds: float, rate: float) -> int | None:
-    """Whole ticks for a phase of at least ``seconds`` however the tick falls: ``ceil + 1``."""
+def switch_lag(drive: Drive) -> tuple[float, float]:
+    """``(short, long)``: how much shorter and longer (s) the reference driver's full-on time
+    can be than its ``PEAK_TICKS`` ticks, from where its ticks fall against the PWM periods
+    (see the module docstring; ``T`` the timer's period, :func:`conversion_period`): a
+    current-mode hold ``1.5 T`` and ``0.5 T``, a PWM hold (fixed, supply table, closed loop)
+    ``T`` and ``T``. A boosted peak ends at its threshold, not at a tick: ``(0, 0)``."""
+    if drive.supply.boosted:
+        return 0.0, 0.0
+    period = conversion_period(drive)
+    if drive.hold.mode == "current":
+        return 1.5 * period, 0.5 * period
+    return period, period
+
+
+def lag_governs(pull_in, rate: float) -> bool:
+    """Whether the driver's switch lag (:func:`switch_lag`), not one tick, is what a designed
+    peak (a :class:`~coildrive.design.result.PullInResult`) allows for below its ticks: its
+    shortest real peak is more than one tick shorter than ``peak_ticks``."""
+    if pull_in.peak_ticks is None or pull_in.shortest_peak_s is None:
+        return False
+    return pull_in.shortest_peak_s * rate < pull_in.peak_ticks - 1 - 1e-6
+
+
+def allowance_words(pull_in, rate: float) -> str:
+    """What the peak's ticks add to its requirement, in words: ``+1 tick``, or the driver's
+    switch lag where that is longer (:func:`lag_governs`)."""
+    return "+ the driver's switch lag" if lag_governs(pull_in, rate) else "+1 tick"
+
+
+def _ticks(seconds: float, rate: float, lag: float = 0.0) -> int | None:
+    """Whole ticks for a phase of at least ``seconds`` however the tick falls (``ceil + 1``)
+    and, run ``lag`` s short by the driver's switch (:func:`switch_lag`), still at least
+    ``seconds``."""
     if not math.isfinite(seconds):
         return None
-    return math.ceil(seconds * rate - 1e-9) + 1
+    return math.ceil(max(seconds * rate + 1.0, (seconds + lag) * rate) - 1e-9)
 
 
 def force_times(drive: Drive, res: PointResults) -> tuple[np.ndarray, float]:
@@ -88,17 +131,18 @@ def _boost_runs(res: PointResults):
 
 
 def requirement(drive: Drive, t_pull: np.ndarray, t_force: np.ndarray, margin: float | None = None,
-                settle: float | None = None) -> tuple[int | None, int | None, int | None]:
+                settle: float | None = None, lag: float = 0.0) -> tuple[int | None, int | None, int | None]:
     """``(ticks, time-margin ticks, force-margin ticks)`` for pull-in times and force
     times over points (their worst); ``margin`` and ``settle`` (s) replace
-    ``pull_in.margin`` and ``pull_in.settle_time`` (a latching coil's reset pulse)."""
+    ``pull_in.margin`` and ``pull_in.settle_time`` (a latching coil's reset pulse); ``lag``
+    s: how much shorter than its ticks the driver may run the peak (:func:`switch_lag`)."""
     rate = drive.board.tick.rate
     margin = drive.pull_in.margin if margin is None else margin
     settle = drive.pull_in.settle_time if settle is None else settle
     tp = float(np.max(np.where(np.isnan(t_pull), np.inf, t_pull)))
     tf = float(np.max(np.where(np.isnan(t_force), np.inf, t_force)))
-    by_time = _ticks(tp * margin, rate)
-    by_force = _ticks(tf + settle, rate)
+    by_time = _ticks(tp * margin, rate, lag)
+    by_force = _ticks(tf + settle, rate, lag)
     if by_time is None:
         return None, None, by_force
     return max(by_time, by_force or 0), by_time, by_force
@@ -116,7 +160,8 @@ def plan_peak(drive: Drive, grid: CornerGrid, first: PointResults, entry_results
     k_pull = worst(t_pull)
     tf_all, i_force = force_times(drive, first)
     k_force = worst(tf_all)
-    ticks, by_time, by_force = requirement(drive, t_pull, tf_all)
+    lag, lead = switch_lag(drive)
+    ticks, by_time, by_force = requirement(drive, t_pull, tf_all, lag=lag)
     if drive.supply.boosted:
         # the peak ends at its threshold (the force current) at every point; the ticks are
         # the time-out: the worst corner's longest peak x margin (design/boost.py)
@@ -154,7 +199,7 @@ def plan_peak(drive: Drive, grid: CornerGrid, first: PointResults, entry_results
         tp_e = np.asarray(entry_results.pull_in_time, float).reshape(m, -1)
         tf_e, _ = force_times(drive, entry_results)
         tf_e = np.asarray(tf_e, float).reshape(m, -1)
-        entries = [requirement(drive, tp_e[i], tf_e[i])[0] for i in range(m)]
+        entries = [requirement(drive, tp_e[i], tf_e[i], lag=lag)[0] for i in range(m)]
         if all(e is not None for e in entries):
             table = PeakTable([float(v) for v in table_volts], [int(c) for c in table_codes],
                               [int(e) for e in entries], [float(v) for v in table_design])
@@ -170,11 +215,11 @@ def plan_peak(drive: Drive, grid: CornerGrid, first: PointResults, entry_results
         codes = np.asarray(table.adc_codes)
         k_hi = np.clip(np.searchsorted(codes, code_high, side="right") - 1, 0, len(codes) - 1)
         k_lo = np.clip(np.searchsorted(codes, code_low, side="right") - 1, 0, len(codes) - 1)
-        short = (ent[k_hi] - 1) / rate
-        long_ = ent[k_lo] / rate
+        short = np.minimum(ent[k_hi] - 1, ent[k_hi] - lag * rate) / rate
+        long_ = ent[k_lo] / rate + lead
     else:
-        short = np.full(n, (ticks - 1) / rate)
-        long_ = np.full(n, ticks / rate)
+        short = np.full(n, min(ticks - 1, ticks - lag * rate) / rate)
+        long_ = np.full(n, ticks / rate + lead)
     return PeakPlan(ticks, by_time, by_force, float(t_pull[k_pull]), k_pull, float(tf_all[k_force]),
                     k_force, i_force, short, long_, table, not_reached, governed)
 

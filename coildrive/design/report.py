@@ -8,6 +8,7 @@ from rich.table import Table
 
 from ..console import print_cautions, print_verdict
 from ..units import format_si
+from .peak import allowance_words, lag_governs
 from .result import ELEMENT_NAMES, Design
 from .supply import CLAMP_RIPPLE_METHOD, HANDOVER_PWM, MIXED_RIPPLE_METHOD
 from .thermal_cycle import duration_text
@@ -15,6 +16,15 @@ from .thermal_cycle import duration_text
 
 def _ms(seconds: float) -> str:
     return format_si(seconds, "s")
+
+
+def _short_words(d: Design) -> str:
+    """The shortest real peak: one tick short, or the driver's switch lag short where that
+    is longer (design/peak.py's switch_lag)."""
+    p = d.pull_in
+    if not lag_governs(p, d.drive.board.tick.rate):
+        return f"{p.peak_ticks - 1} ticks"
+    return f"{p.peak_ticks} ticks less the switch lag, {_ms(p.shortest_peak_s)}"
 
 
 def summary_table(d: Design) -> Table:
@@ -130,7 +140,7 @@ def _pull_in_rows(d: Design) -> list:
             ("current at end of peak", f"<= {p.peak_end_current_max_a:.4g} A", f"at {p.peak_end_corner}"),
         ]
     force = (f"{p.current_margin:g} x pull-in = {p.force_current_a:.4g} A by the shortest peak "
-             f"({p.peak_ticks - 1} ticks): {p.shortest_peak_current_a:.4g} A at {p.force_corner}"
+             f"({_short_words(d)}): {p.shortest_peak_current_a:.4g} A at {p.force_corner}"
              if p.force_time_s is not None else
              f"{p.current_margin:g} x pull-in = {p.force_current_a:.4g} A not reached at {p.force_corner}")
     return [
@@ -138,7 +148,7 @@ def _pull_in_rows(d: Design) -> list:
         ("peak phase", _ms(p.peak_time_s),
          f"{p.peak_ticks} ticks, set by the {p.governed_by}"
          + ("; looked up against the supply (the longest entry)" if p.compensated else "")),
-        ("  time margin", f"x{p.margin:g}", f"{p.time_margin_ticks} ticks = worst pull-in x {p.margin:g}, +1 tick"),
+        ("  time margin", f"x{p.margin:g}", f"{p.time_margin_ticks} ticks = worst pull-in x {p.margin:g}, {allowance_words(p, d.drive.board.tick.rate)}"),
         ("  force margin", f"x{p.current_margin:g} current", force
          + (f"; + settle {_ms(p.settle_time_s)}" if p.settle_time_s > 0 else "")),
         ("current at end of peak", f"<= {p.peak_end_current_max_a:.4g} A", f"at {p.peak_end_corner}"),

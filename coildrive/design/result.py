@@ -264,14 +264,18 @@ class PullInResult:
     """Pull-in: worst-corner time to the pull-in current and the chosen peak duration.
 
     The peak is the longest of: the worst pull-in time x ``margin`` (``time_margin_ticks``),
-    and the time the shortest real peak (``peak_ticks - 1`` ticks: a tick-based phase may
-    start anywhere in a tick) needs to carry ``current_margin`` x the pull-in current
+    and the time the shortest real peak (``shortest_peak_s``: ``peak_ticks - 1`` ticks, a
+    tick-based phase may start anywhere in a tick; or the reference driver's switch lag
+    below ``peak_ticks`` where that is longer, design/peak.py) needs to carry
+    ``current_margin`` x the pull-in current
     (``force_current_a``) at the worst corner, plus ``settle_time_s``
     (``force_margin_ticks``); ``governed_by`` names which. ``shortest_peak_current_a`` is
     the current at the end of the shortest real peak at ``force_corner``. Where the
     current is never reached, the times and ticks are ``None`` and ``not_reached`` says
     what is not reached where and why. ``compensated``: the peak is looked up against the
     supply (``Design.peak_table``); ``peak_ticks`` is then its longest entry.
+    ``longest_peak_s``: the longest real full-on time the driver may run (``peak_ticks`` and
+    its switch's lead; the longest entry's), the one the end current and the heat take.
     """
 
     current_a: float
@@ -294,6 +298,7 @@ class PullInResult:
     shortest_peak_current_a: float | None = None
     compensated: bool = False
     not_reached: str | None = None
+    longest_peak_s: float | None = None
 
 
 @dataclass(frozen=True)
