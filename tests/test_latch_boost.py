@@ -291,6 +291,12 @@ def test_design_json_header_simulate_and_bench(tmp_path, valve):
             assert [e.index for e in faults] == offs and len(offs) >= 2
             assert {e.value for e in faults} == {int(FaultCode.BOOST_TIMEOUT)}
             assert row.status == "FAIL" and row.detail.count("BOOST_TIMEOUT at ") == len(offs), row.detail
+            # as a user reads it: check --json exits 1 with the row
+            res = runner.invoke(app, ["check", str(tmp_path / "slow.cdcap"), str(VALVE), "--coil-temp", "100",
+                                      "--json"])
+            assert res.exit_code == 1, res.stderr
+            out = next(c for c in json.loads(res.stdout)["items"] if c["name"] == "faults")
+            assert out["status"] == "FAIL" and "BOOST_TIMEOUT" in out["detail"], out
         else:
             assert not faults and row is None
 
