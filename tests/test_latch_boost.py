@@ -273,12 +273,32 @@ def test_design_json_header_simulate_and_bench(tmp_path, valve):
     from coildrive.bench.latch_check import check_latch_capture
     from coildrive.bench.latch_device import LatchDevice
 
-    for name, scale, ok in (("good", 1.0, True), ("bad", 1.4, False)):
+    # a coil with 3 x the inductance reads its codes at no tick before the time-out: each pulse
+    # ends there with the driver's FAULT BOOST_TIMEOUT after its OFF, and check fails on it
+    from coildrive.bench.messages import EventKind, FaultCode
+
+    for name, scale, l_scale, ok in (("good", 1.0, 1.0, True), ("bad", 1.4, 1.0, False), ("slow", 1.0, 3.0, False)):
         dev = LatchDevice(d, DeviceOptions(noise_codes=0.5, seed=5, supply=9.0, coil_temp=100.0,
-                                           resistance_scale=scale))
+                                           resistance_scale=scale, inductance_scale=l_scale))
         msgs, _ = run_device(dev, 0.05 + 2.2 * dev.period, step=0.05)
-        rep = check_latch_capture(capture_of(msgs, tmp_path / f"{name}.cdcap"), d, coil_temp=100.0)
+        cap = capture_of(msgs, tmp_path / f"{name}.cdcap")
+        rep = check_latch_capture(cap, d, coil_temp=100.0)
         assert rep.ok is ok, [(i.name, i.status, i.detail) for i in rep.items]
+        offs = [e.index for e in cap.events if e.kind == EventKind.OFF]
+        faults = [e for e in cap.events if e.kind == EventKind.FAULT]
+        row = next((i for i in rep.items if i.name == "faults"), None)
+        if name == "slow":
+            assert [e.index for e in faults] == offs and len(offs) >= 2
+            assert {e.value for e in faults} == {int(FaultCode.BOOST_TIMEOUT)}
+            assert row.status == "FAIL" and row.detail.count("BOOST_TIMEOUT at ") == len(offs), row.detail
+            # as a user reads it: check --json exits 1 with the row
+            res = runner.invoke(app, ["check", str(tmp_path / "slow.cdcap"), str(VALVE), "--coil-temp", "100",
+                                      "--json"])
+            assert res.exit_code == 1, res.stderr
+            out = next(c for c in json.loads(res.stdout)["items"] if c["name"] == "faults")
+            assert out["status"] == "FAIL" and "BOOST_TIMEOUT" in out["detail"], out
+        else:
+            assert not faults and row is None
 
 
 BOOST = ("[supply]\n", "[supply]\nboost = \"40 V\"\nboost_capacitance = \"220 uF\"\nboost_power = \"1 W\"\nboost_efficiency = 0.85\n")

@@ -112,11 +112,14 @@ def test_driver_in_the_loop_passes_check_and_faults_fail(tmp_path):
     """firmware-driver -> the compiled driver in the model's device (gcc; the model is the
     design's own, so this proves the plumbing) -> check: the example at 9 V with a hot coil
     passes; a coil with 40 % more resistance fails; one with three times the inductance
-    never reads its codes in time: every pulse times out with a FAULT and check fails."""
+    never reads its codes in time: every pulse times out with a FAULT, which the capture
+    holds at the pulse's OFF, and check fails with a ``faults`` row naming BOOST_TIMEOUT."""
     from test_emulator_device import capture_of, run as run_device
     from coildrive.bench.device import DeviceOptions
     from coildrive.bench.latch_check import check_latch_capture
+    from coildrive.bench.latch_device import LatchDevice
     from coildrive.bench.latch_firmware_device import LatchFirmwareDevice
+    from coildrive.bench.synth import first_sample_at_or_after
     from coildrive.codegen.host_build import build_latch_firmware
     from coildrive.codegen.latch_driver import pulse_switches
 
@@ -131,15 +134,43 @@ def test_driver_in_the_loop_passes_check_and_faults_fail(tmp_path):
         dev = LatchFirmwareDevice(D, lib, pulse_switches(D), DeviceOptions(noise_codes=0.5, seed=5, supply=9.0,
                                                                            coil_temp=100.0, **extra))
         msgs, _ = run_device(dev, 0.05 + dev.interval + 2.2 * dev.period, step=0.05)
-        rep = check_latch_capture(capture_of(msgs, tmp_path / f"{name}.cdcap"), D, coil_temp=100.0)
+        cap = capture_of(msgs, tmp_path / f"{name}.cdcap")
+        rep = check_latch_capture(cap, D, coil_temp=100.0)
         assert rep.ok is ok, (name, [(i.name, i.status, i.detail) for i in rep.items])
         assert bool(dev.faults) == (name == "slow"), dev.faults
+        # the driver's FAULTs are in the capture, each at its pulse's OFF (the time-out's tick)
+        fs = dev.sample_rate
+        offs = [e.index for e in cap.events if e.kind == OFF]
+        got = [(e.index, e.value) for e in cap.events if e.kind == FAULT]
+        assert got == [(first_sample_at_or_after(t, fs), v) for t, v in dev.faults], (got, dev.faults)
+        assert all(i in offs for i, _ in got)
+        row = next((i for i in rep.items if i.name == "faults"), None)
+        if name == "slow":   # every complete pulse timed out: the row fails naming the code
+            pulses = [p for p in rep.analysis.pulses if p.partial is None]
+            assert len(got) >= len(pulses) >= 2 and {v for _, v in got} == {int(FaultCode.BOOST_TIMEOUT)}
+            assert row is not None and row.status == "FAIL" and "BOOST_TIMEOUT at " in row.detail, row
+        else:
+            assert row is None and not got
+        # the model's device (coildrive.bench.latch_device: the time-out rule in Python) streams
+        # the same FAULTs, at the same sample after each pulse's ON, as the compiled driver
+        model = LatchDevice(D, DeviceOptions(noise_codes=0.5, seed=5, supply=9.0, coil_temp=100.0, **extra))
+        mine = capture_of(run_device(model, 0.05 + 2.2 * model.period, step=0.05)[0], tmp_path / f"m{name}.cdcap")
+        assert _fault_offsets(mine) == _fault_offsets(cap), name
         if name == "good":   # each pulse as long as the model's firmware runs it there
             from coildrive.design.latch import firmware_pulse
             lengths = {k: firmware_pulse(D, k, 9.0, 100.0) for k in ("set", "reset")}
             ends = [p for p in rep.analysis.pulses if p.partial is None]
             for p in ends:
                 assert p.length_s == pytest.approx(lengths[p.name], abs=1.5 / dev.sample_rate), (p, lengths)
+
+
+def _fault_offsets(cap) -> set:
+    """``{(pulse value, samples from its ON to each FAULT, FAULT value)}`` of a capture."""
+    out = set()
+    for e in (e for e in cap.events if e.kind == FAULT):
+        on = max((o for o in cap.events if o.kind == ON and o.index <= e.index), key=lambda o: o.index)
+        out.add((on.value, e.index - on.index, e.value))
+    return out
 
 
 def test_boosted_latch_driver_compiles_warning_free_in_every_dialect(tmp_path):

@@ -20,6 +20,10 @@ pulse; ``docs/protocol.md``) to OFF, then the decay to zero. Per pulse:
   to two sample periods and the time one code takes. ``n/a`` where the sense resistor
   does not see the decay (under the switches, or a bridge's common return).
 
+``faults`` (only when the capture holds FAULT events: a pulse from the boost that timed
+out sends ``BOOST_TIMEOUT`` after its OFF) lists each with its name and time and fails, as
+:func:`coildrive.bench.check._fault_row` does for a peak and hold.
+
 A pulse the capture cut short (no OFF, or its current not back at zero when the capture
 ends, or begun before it) is reported and left out, like the partial actuations of
 :mod:`coildrive.bench.check`.

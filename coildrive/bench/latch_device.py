@@ -13,8 +13,12 @@ design's pulse length (whole scheduler ticks; with ``pull_in.compensate`` the ta
 its supply reads; from the boost until its nominal threshold at the device's point), from
 a full capacitor on a drooping bus or from the boost,
 and decays to zero through the release path. Events: ON at its start (``value`` 0 for
-the set pulse, 1 for the reset pulse: ``docs/protocol.md``), OFF at its end; SUPPLY and
-TEMPERATURE as for any actuation.
+the set pulse, 1 for the reset pulse: ``docs/protocol.md``), OFF at its end, then the
+FAULT events the driver raised at that pulse, at the OFF's sample (``_faults``): a pulse
+from the boost that reaches its threshold code at no tick before its time-out ends there
+with FAULT ``BOOST_TIMEOUT`` (7), as the reference driver does (the compiled driver's own,
+in :mod:`coildrive.bench.latch_firmware_device`); SUPPLY and TEMPERATURE as for any
+actuation.
 
 What the sense resistor reads (``docs/bench.md``, *A latching coil on the bench*):
 
@@ -45,7 +49,7 @@ from ..config import Drive
 from ..design.latch import LatchDesign, firmware_pulse, winding_drive
 from .capture_file import CaptureEvent
 from .device import MIN_AUTO_PERIOD, DeviceOptions, OptionError, VirtualDevice, _Recording
-from .messages import EventKind, Opcode, ReplyStatus
+from .messages import EventKind, FaultCode, Opcode, ReplyStatus
 from .synth import first_sample_at_or_after
 
 #: ON event value of each pulse (``docs/protocol.md``, section 4.2).
@@ -91,6 +95,8 @@ class LatchDevice(VirtualDevice):
         self._next_kind = "set"
         self._last_start = -math.inf
         self._boost_peak = None
+        #: the FAULT events of each pulse, by its recording's number: [(s, FaultCode value)]
+        self._faults: dict[int, list[tuple[float, int]]] = {}
         self.info = self._make_info(False)
         if options.period is not None and options.period < self.interval:
             raise OptionError("period", f"{options.period:g} s is shorter than the design's shortest safe "
@@ -129,7 +135,9 @@ class LatchDevice(VirtualDevice):
         fs = self.sample_rate
         w = rec.w
         return [CaptureEvent(first_sample_at_or_after(rec.t_on, fs), int(EventKind.ON), PULSE_CODE[w.kind]),
-                CaptureEvent(first_sample_at_or_after(rec.t_on + w.on_time, fs), int(EventKind.OFF), 0)]
+                CaptureEvent(first_sample_at_or_after(rec.t_on + w.on_time, fs), int(EventKind.OFF), 0),
+                *(CaptureEvent(first_sample_at_or_after(t, fs), int(EventKind.FAULT), code)
+                  for t, code in self._faults.get(rec.number, ()))]
 
     def _recording_span(self, hold_time: float) -> float:
         """s from the start of the longer pulse's recording to the end of its stream."""
@@ -138,17 +146,34 @@ class LatchDevice(VirtualDevice):
     def _start_automatic(self, now: float) -> None:
         self._start(now)
 
+    def times_out(self, kind: str) -> bool:
+        """Whether pulse ``kind`` from the boost ends at its time-out at the device's point
+        (the reading reaches its threshold code at no tick before it): the driver's FAULT
+        ``BOOST_TIMEOUT`` (:func:`coildrive.design.latch_boost.firmware_times_out`)."""
+        p = next(x for x in self.design.latch.pulses if x.name == kind)
+        if p.boost is None:
+            return False
+        from ..design.latch_boost import firmware_times_out
+
+        o = self.options
+        return firmware_times_out(self._drives[kind], p.boost, self.supply, self.coil_temp, o.resistance_scale,
+                                  o.inductance_scale)
+
     def _start(self, now: float, hold_time: float | None = None) -> None:
         kind = self._next_kind
         self._next_kind = "reset" if kind == "set" else "set"
         self._last_start = now
-        self._record(now, (kind, self.pulse_time(kind)))
+        length = self.pulse_time(kind)
+        if self.times_out(kind):   # after its OFF, at the same sample, as the driver sends it
+            self._faults[self._count + 1] = [(now + length, int(FaultCode.BOOST_TIMEOUT))]
+        self._record(now, (kind, length))
 
     def _stop(self, now: float) -> None:
         """STOP at ``now``: the switches open at once (the pulse ends there)."""
         rec = self._rec
         if rec is None or now >= rec.t_off or rec.stopped:
             return
+        self._faults.pop(rec.number, None)   # ended before its time-out
         self._replan(rec, (rec.key[0], max(now - rec.t_on, 1.0 / self.sample_rate)), now)
 
     def _execute(self, cmd, now: float) -> tuple[int, int]:

@@ -12,8 +12,8 @@ shortest interval the driver enforces) and ends where the driver opens them; its
 OFF events carry the driver's values. Switches the design has no path for (a mask that is
 neither pulse's) are a ``RuntimeError``. Pulses from the boost: the driver ends each where
 the current-sense reading the device gives it every tick reaches the pulse's threshold
-code (or at its time-out, whose FAULT event ``faults`` keeps; the latch device streams ON
-and OFF only).
+code, or at its time-out with a FAULT event (``BOOST_TIMEOUT``), which the device streams
+after the pulse's OFF, at the same sample (``faults`` keeps every one, for tests).
 
 The samples and events go out through the device's own encoder (the peak-and-hold
 driver's loop, :mod:`coildrive.bench.firmware_device`, uses the C encoder; the frames are
@@ -76,7 +76,8 @@ class LatchFirmwareDevice(LatchDevice):
             self.lib.fil_supply(adc_code(self.supply / b.supply_sense.divider, b.adc.reference, b.adc.bits))
         self._kind_of_mask = {m: k for k, m in masks.items()}
         #: pulses from the boost: the driver ends each at its threshold code, so it reads the
-        #: current every tick (a nominal sense chain, no noise); a time-out's FAULT values here
+        #: current every tick (a nominal sense chain, no noise); every FAULT the driver sends,
+        #: (s, value), also streamed with its pulse
         self._boosted = design.drive.supply.boosted
         self.faults: list[tuple[float, int]] = []
         self._tick = 0                   # the next tick: at (n + 1) / tick rate
@@ -95,13 +96,22 @@ class LatchFirmwareDevice(LatchDevice):
         self._tick += 1
         if self._boosted:
             self.lib.fil_current(self._reading(t))
-        events = int(self.lib.fil_tick())
-        if not events:
+        n = int(self.lib.fil_tick())
+        if not n:
             return
         self._run(t)                     # the line up to this tick, then the switch change
         mask = int(self.lib.fil_switches())
-        for k in range(events):
-            kind, value = int(self.lib.fil_event_kind_at(k)), int(self.lib.fil_event_value_at(k))
+        events = [(int(self.lib.fil_event_kind_at(k)), int(self.lib.fil_event_value_at(k))) for k in range(n)]
+        # a FAULT goes with the pulse the tick ends (the time-out's comes after its OFF): it is
+        # the running recording's before the OFF plans that recording's frames again
+        faults = [value for kind, value in events if kind == EventKind.FAULT]
+        if faults:
+            if self._on is None or not any(kind == EventKind.OFF for kind, _ in events):
+                raise RuntimeError(f"the driver sends FAULT {faults[0]} without ending a pulse at that tick; "
+                                   "the coil model streams a latch driver's FAULT with the pulse it ends")
+            self.faults += [(t, v) for v in faults]
+            self._faults.setdefault(self._rec.number, []).extend((t, v) for v in faults)
+        for kind, value in events:
             if kind == EventKind.ON:
                 pulse = self._kind_of_mask.get(mask)
                 if pulse is None or PULSE_CODE[pulse] != value:
@@ -112,8 +122,6 @@ class LatchFirmwareDevice(LatchDevice):
                 self._on = (pulse, t)
                 self.starts.append(self._on)
                 self._record(t, (pulse, 2.0 * self.pulse_time(pulse)))
-            elif kind == EventKind.FAULT:
-                self.faults.append((t, value))
             elif kind == EventKind.OFF and self._on is not None:
                 if mask != 0:
                     raise RuntimeError(f"the driver sends OFF with the switches {mask:#x} on")

@@ -113,6 +113,29 @@ def firmware_time(wd: Drive, b: BoostResult, supply: float, coil_temp: float, r_
     if sooner (as :func:`coildrive.design.boost.firmware_peak` for the peak). A design
     whose threshold is never reached has no time-out: then until the current's first
     maximum (an ideal boost's: five time constants), to show how far short it falls."""
+    t, m, bb = _threshold_tick(wd, b, supply, coil_temp, r_factor, l_factor)
+    if b.timeout_s is None:
+        top = float(m.peak_time(bb))
+        return min(t, top if np.isfinite(top) else 5.0 * float(bb.l / bb.r))
+    return min(t, b.timeout_s)
+
+
+def firmware_times_out(wd: Drive, b: BoostResult, supply: float, coil_temp: float, r_factor: float = 1.0,
+                       l_factor: float = 1.0) -> bool:
+    """Whether the firmware's pulse at one point (:func:`firmware_time`) ends at its
+    time-out, with the driver's FAULT ``BOOST_TIMEOUT``: the reading reaches the code at
+    no tick up to the time-out's (at that tick the code still ends it, without a fault)."""
+    if b.timeout_s is None:
+        return False
+    t = _threshold_tick(wd, b, supply, coil_temp, r_factor, l_factor)[0]
+    rate = wd.board.tick.rate
+    return not math.isfinite(t) or round(t * rate) > round(b.timeout_s * rate)
+
+
+def _threshold_tick(wd: Drive, b: BoostResult, supply: float, coil_temp: float, r_factor: float,
+                    l_factor: float) -> tuple:
+    """The tick (s) at which the driver first reads the threshold code at one point (``inf``
+    never), the boost model and its parameters there."""
     s = wd.supply
     lp = loop(wd, supply, coil_temp, r_factor, l_factor)
     bb = boost.at_boost(wd, s.boost, s.boost_capacitance, lp.r_on, lp.inductance)
@@ -121,10 +144,7 @@ def firmware_time(wd: Drive, b: BoostResult, supply: float, coil_temp: float, r_
     rate = wd.board.tick.rate
     # the driver compares at each tick after the pulse's first: at the first at or after the crossing
     t = max(math.ceil(t * rate - 1e-9), 1) / rate if math.isfinite(t) else t
-    if b.timeout_s is None:
-        top = float(m.peak_time(bb))
-        return min(t, top if np.isfinite(top) else 5.0 * float(bb.l / bb.r))
-    return min(t, b.timeout_s)
+    return t, m, bb
 
 
 def sample_figures(wd: Drive, lp, rel, sense_factor, b: BoostResult, current: float, v_factor, c_factor) -> tuple:
