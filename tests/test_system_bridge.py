@@ -139,7 +139,8 @@ def test_simulated_droop_with_bridges_against_solve_ivp(tmp_path):
     negative while a bridge returns its current. Then with a mixed-decay hold (30 % of each
     off-time fast): its fast parts return the current into the bus too, each to its end or
     the diodes' block (an event of the reference's integration), then the slow part; the
-    same reference and tolerances."""
+    same reference and tolerances. With an eddy term on the bridge the rail stays stiff,
+    said in one line."""
     path = manifold_copy(tmp_path)
     purge = tmp_path / "purge-valve-24v.toml"
     text = purge.read_text().split("[freewheel]")[0]
@@ -150,3 +151,10 @@ def test_simulated_droop_with_bridges_against_solve_ivp(tmp_path):
                      + BRIDGE)
     bus = droop_against_solve_ivp(path, tmp_path)
     assert bus.max() > 20.0, "the fast parts and the release lift the bus above the source"
+    # with an eddy term on the bridge the rail stays stiff, said in one line
+    purge.write_text(purge.read_text().replace('inductance = "70 mH"\n', 'inductance = "70 mH"\neddy_resistance = "150 ohm"\n'))
+    r = CliRunner().invoke(app, ["simulate", str(path), "--supply", "20", "--coil-temp", "0", "--hold-time", "0.002",
+                                 "--csv", str(tmp_path / "eddy.csv")])
+    assert r.exit_code == 0, r.output
+    (line,) = [x for x in r.stderr.splitlines() if "stiff" in x]
+    assert "a full bridge with an eddy term: the bus is taken stiff" in line and "bus_v" not in r.stderr
