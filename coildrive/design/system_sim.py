@@ -9,8 +9,8 @@ rail's current is the sum of the switches' currents (a coil's current while its 
 conducts, and while it decays through a clamp across its switch, which takes it from the
 rail). On a rail with the system's source resistance and capacitance whose channels are
 all linear coils on voltage-mode holds, on one switch with a path across the coil (an
-eddy term too) or on a full bridge with slow decay, or linear coils on one switch under a
-current-mode hold (their comparators' edges found on the bus,
+eddy term too) or on a full bridge (slow or mixed decay in the hold), or linear coils on
+one switch under a current-mode hold (their comparators' edges found on the bus,
 :class:`~coildrive.model.shared_bus.ThresholdRun`; the rail is run twice so that the grid
 has those edges), the bus droops and its droop is fed back into the coils, exact between
 switching moments (:func:`coildrive.model.shared_bus.on_bus` on each channel's
@@ -231,8 +231,7 @@ def _stiff_reason(channels, fed) -> str | None:
                     "a current-mode hold with a moving armature, a flux-linkage curve, an eddy term, "
                     "a full bridge or a boosted peak" if c.design.hold.mode == "current" else
                     "a boosted peak" if c.design.drive.supply.boosted else
-                    "a moving armature, a flux-linkage curve, or a full bridge with an eddy term or "
-                    "a mixed-decay hold")
+                    "a moving armature, a flux-linkage curve, or a full bridge with an eddy term")
             return f"channel {c.name!r} has {what}: the bus is taken stiff (its droop is the design's)"
         if c.design.drive.freewheel.type == "clamp":
             return (f"channel {c.name!r} decays through a clamp across its switch, from the rail: the "
@@ -245,10 +244,12 @@ def bus_run(drive, run, start: float, supply: float, coil_temp: float, r_factor:
     """A channel as the drooping bus feeds it (:class:`~coildrive.model.shared_bus.BusRun`):
     a linear coil on one switch under a voltage-mode hold (its
     :class:`~coildrive.model.shared_pwm.ChannelRun`), or with an eddy term, or on a full
-    bridge with slow decay (its own actuation's switching moments, the run's ``switch_on``
-    and split decay's ``bypass_on``: on, the hold's path while off before the final
-    turn-off or while the bypass conducts, the release path after -- a bridge's fast decay,
-    returning into the bus over its two diode drops; the loop's (magnetising) inductance
+    bridge with slow or mixed decay in its hold (its own actuation's switching moments, the
+    run's ``switch_on``, a bridge's ``switches`` and split decay's ``bypass_on``: on, the
+    hold's path while off before the final turn-off or while the bypass conducts, the
+    release path after -- a bridge's fast decay, returning into the bus over its two diode
+    drops until they block; a mixed-decay hold's fast parts, all four open, are that same
+    path, each to its scheduled end, then its slow part, Q2 + Q4, off the bus; the loop's (magnetising) inductance
     and eddy resistance at ``supply`` V, ``coil_temp`` degC and the tolerance factors);
     A linear coil on one switch under a current-mode hold (``gated``: its thresholds, peak s
     and hold s; split decay too) is a :class:`~coildrive.model.shared_bus.ThresholdRun`, its
@@ -269,7 +270,7 @@ def bus_run(drive, run, start: float, supply: float, coil_temp: float, r_factor:
                             slow=slow)
     bridge = full_bridge(drive)
     if not (isinstance(run, Waveform) and (drive.coil.eddy_resistance or bridge) and not drive.coil.flux_current
-            and drive.armature is None and not (bridge and (drive.coil.eddy_resistance or drive.hold.fast_fraction))
+            and drive.armature is None and not (bridge and drive.coil.eddy_resistance)
             and drive.hold.mode != "current" and not drive.supply.boosted):
         return None
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
@@ -278,8 +279,10 @@ def bus_run(drive, run, start: float, supply: float, coil_temp: float, r_factor:
     tw, sw = run.time[after] + start, run.switch_on[after]
     last_on = int(np.flatnonzero(sw)[-1])
     bypass = np.zeros(len(tw), np.int8) if run.bypass_on is None else run.bypass_on[after]
-    if bridge:       # all four open after the final turn-off: the fast decay
-        kind = np.where(sw == 1, ON, np.where(np.arange(len(tw)) < last_on, HOLD_OFF, RELEASE))
+    if bridge:       # all four open: the fast decay (after the final turn-off, a mixed-decay
+        # hold's fast parts); Q2 + Q4 on: the slow decay
+        fast = np.all([s[after] == 0 for s in run.switches.values()], axis=0) & (sw == 0)
+        kind = np.where(sw == 1, ON, np.where((np.arange(len(tw)) < last_on) & ~fast, HOLD_OFF, RELEASE))
     else:
         kind = np.where(sw == 1, ON, np.where((np.arange(len(tw)) < last_on) | (bypass == 1), HOLD_OFF, RELEASE))
     # a segment starts at its first row; a turn-off at the on-time's last row (on-segments
@@ -288,6 +291,8 @@ def bus_run(drive, run, start: float, supply: float, coil_temp: float, r_factor:
     first = np.flatnonzero(np.append(True, kind[1:] != kind[:-1]))
     prev = np.maximum(first - 1, 0)
     before = (kind[prev] == ON) | ((kind[first] == ON) & (tw[first] - tw[prev] <= 1.5 * EDGE))
+    # a mixed-decay hold's fast part ends at its last row (model/mixed_waveform.py)
+    before |= (kind[prev] == RELEASE) & (kind[first] == HOLD_OFF)
     edges = np.where(before & (first > 0), tw[prev], tw[first])
     coil = lp.inductance
     if bridge:       # the fast decay into the bus through the two body diodes

@@ -25,9 +25,9 @@ coil back on the bus, and while off it freewheels in its own loop down to zero.
 :func:`on_bus` runs every channel's whole actuation on the bus (:class:`BusRun`): a coil
 with an eddy resistance across it keeps its magnetising current in the state (still
 linear), and a full bridge's fast decay returns its current into the bus until its
-diodes block. A current-mode hold (:class:`ThresholdRun`) switches on its comparator's
-thresholds: its edges are events found on the coupled closed form. Units A, V, ohm, H,
-F, s.
+diodes block (a mixed-decay hold's fast parts too, each to its scheduled end). A
+current-mode hold (:class:`ThresholdRun`) switches on its comparator's thresholds: its
+edges are events found on the coupled closed form. Units A, V, ohm, H, F, s.
 """
 
 from __future__ import annotations
@@ -234,7 +234,8 @@ class BusRun:
     ``r_eddy`` ohm (``inf``: none). ``returns``: the release returns the current into the
     bus (a full bridge's fast decay through two body diodes: ``L di/dt = -(v + v_rel) -
     r_rel i``, ``v_rel`` the two diode drops, the capacitor taking ``+i``) until it is
-    zero, where the diodes block."""
+    zero, where the diodes block; a ``RELEASE`` segment before a later one is a mixed-decay
+    hold's fast part, all four switches open, the same path."""
 
     start: np.ndarray
     kind: np.ndarray
