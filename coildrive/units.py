@@ -195,4 +195,6 @@ def format_si(value: float, unit: str, digits: int = 4) -> str:
     exponent = max(-4, min(3, exponent))
     prefix = {-4: "p", -3: "n", -2: "\u00b5", -1: "m", 0: "", 1: "k", 2: "M", 3: "G"}[exponent]
     scaled = value / 10 ** (3 * exponent)
+    # at least the integer part's digits: 790 ms, not 7.9e+02 ms
+    digits = max(digits, int(math.floor(math.log10(abs(scaled)))) + 1) if abs(scaled) >= 1 else digits
     return f"{scaled:.{digits}g} {prefix}{unit}".strip()

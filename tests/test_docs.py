@@ -131,7 +131,7 @@ def _stale_lines(runs):
     def norm(text):
         # the time a sweep took is the machine's, not the command's: any shown time passes
         # (spaces first: a longer time can wrap the line between the figure and its unit)
-        return re.sub(r"in [\d.e+]+ ms;", "in # ms;", re.sub(r"\s+", " ", text)).strip()
+        return re.sub(r"in [\d.e+]+ [mµ]?s;", "in # s;", re.sub(r"\s+", " ", text)).strip()
     stale = []
     for cmd, columns, args, shown in runs:
         res = CliRunner().invoke(app, args, env={"COLUMNS": columns})

@@ -59,3 +59,5 @@ def test_format_si():
     assert format_si(0.0123, "s") == "12.3 ms"
     assert format_si(25000.0, "Hz") == "25 kHz"
     assert format_si(0.0, "A") == "0 A"
+    # fewer digits than the integer part has: the integer, never an exponent
+    assert format_si(0.79, "s", 2) == "790 ms" and format_si(0.0123, "s", 2) == "12 ms"
