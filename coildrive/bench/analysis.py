@@ -223,12 +223,24 @@ def _block_noise(c: np.ndarray, lag: int = 0) -> float:
     for step in {1, lag} - {0}:
         if x.size < 2 * step + 8:
             continue
-        d2 = x[2 * step:] - 2.0 * x[step:-step] + x[:-2 * step]
-        r = d2 - np.median(d2)
-        scale = max(1.4826 * float(np.median(np.abs(r))), 1.0)
-        kept = r[np.abs(r) <= 5.0 * scale]
-        out.append(math.sqrt(float(np.mean(kept * kept)) / 6.0))
+        r = _centred_d2(x, step)
+        out.append(_d2_sigma(r, 5.0 * max(1.4826 * float(np.median(np.abs(r))), 1.0)))
     return max(min(out), QUANTISATION_SIGMA) if out else QUANTISATION_SIGMA
+
+
+def _centred_d2(x: np.ndarray, step: int) -> np.ndarray:
+    """Second differences ``x[k + 2L] - 2 x[k + L] + x[k]`` (``L`` = ``step``) less their
+    median."""
+    d2 = x[2 * step:] - 2.0 * x[step:-step] + x[:-2 * step]
+    return d2 - np.median(d2)
+
+
+def _d2_sigma(r: np.ndarray, limit: float) -> float:
+    """One sample's noise (codes) from centred second differences ``r``: the RMS of those
+    within ``limit`` of zero (the rest are edges or corners), over sqrt(6) (white noise of
+    sigma s gives second differences of sigma s*sqrt(6))."""
+    kept = r[np.abs(r) <= limit]
+    return math.sqrt(float(np.mean(kept * kept)) / 6.0)
 
 
 def _pwm_lag(samples_per_period: float | None, longest: int, slow: float = 16.0) -> int:
@@ -256,10 +268,8 @@ def _noise_codes_ramps(c: np.ndarray) -> float:
     small difference of two variances that this noise's square is one of."""
     if c.size < 8:
         return QUANTISATION_SIGMA
-    d2 = np.diff(c.astype(np.float64), 2)
-    d2 -= np.median(d2)
-    keep = np.abs(d2) <= max(4.0 * math.sqrt(6.0) * _noise_codes(c), 2.0)
-    return max(math.sqrt(float(np.mean(d2[keep] ** 2)) / 6.0), QUANTISATION_SIGMA)
+    r = _centred_d2(c.astype(np.float64), 1)
+    return max(_d2_sigma(r, max(4.0 * math.sqrt(6.0) * _noise_codes(c), 2.0)), QUANTISATION_SIGMA)
 
 
 def _denoise(c: np.ndarray, sigma: float) -> np.ndarray:
