@@ -81,7 +81,10 @@ def test_firmware_passes_check(tmp_path, firmware, supply, coil_temp):
 # the rise are the healthy coil's).
 @pytest.mark.parametrize("args, code", [(("--fault", "open"), FaultCode.OPEN_LOAD),
                                         (("--fault", "shorted-turns"), FaultCode.SHORTED_TURNS),
-                                        (("--resistance-scale", "0.3"), FaultCode.OVER_CURRENT)])
+                                        # (a fifth of the resistance: 1.35 A held, over the 1.318 A
+                                        # trip that the longest real peak's end current sets; a
+                                        # third held 0.9 A and peaked under it at 24 V)
+                                        (("--resistance-scale", "0.2"), FaultCode.OVER_CURRENT)])
 def test_fault_is_reported_and_the_coil_turned_off(tmp_path, firmware, args, code):
     d = example_design("demo-valve")
     if code == FaultCode.SHORTED_TURNS:
