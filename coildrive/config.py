@@ -1587,7 +1587,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "eddy term on a supply that sinks; with [armature] a linear coil on one switch, an "
                          "eddy term too, no clamp), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
-                         "with [armature]: no mixed decay, no restitution or [duty] with an eddy term; a "
+                         "with [armature]: no mixed decay, no restitution with an eddy term; a "
                          "latching coil: a linear coil and its reset winding, a stiff main supply, no [armature]")
 
 
