@@ -132,19 +132,26 @@ def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
             pieces.append((fl, live.copy(), kw.get("held")))
         return fl
 
+    def advance(mask, **kw):
+        """Fly the points ``mask`` on to the bound or their flight's end; where their
+        current stops there (the diodes block), note when and the bus then."""
+        nonlocal t, y, steps, zero_time, bus_zero, live
+        fl = fly(t, y, bound, mask, live, **kw)
+        steps += fl.steps
+        t = np.where(mask, fl.t, t)
+        y = np.where(mask, fl.y, y)
+        zero = mask & (fl.end == ZERO)
+        zero_time = np.where(zero, t, zero_time)
+        bus_zero = np.where(zero, y[5], bus_zero)
+        live = live & ~zero
+        return fl, zero
+
     # seated until the flux falls to the stay current's (the armature held on the seat)
     seated = (live | (p.eddy is not None)) & on_seat & (y[0] > lam_stay)
     for _ in range(2):   # (an eddy term: the terminal current may stop first, the flux held on)
         if not seated.any():
             break
-        fl = fly(t, y, bound, seated, live, held=ones, flux_down=lam_stay)
-        steps += fl.steps
-        t = np.where(seated, fl.t, t)
-        y = np.where(seated, fl.y, y)
-        zero = seated & (fl.end == ZERO)
-        zero_time = np.where(zero, t, zero_time)
-        bus_zero = np.where(zero, y[5], bus_zero)
-        live = live & ~zero
+        fl, zero = advance(seated, held=ones, flux_down=lam_stay)
         stuck = seated & ~zero & (fl.end != START)   # (never within the bound: it stays seated)
         status = np.where(stuck, NOT_OPEN, status)
         stall_gap = np.where(stuck, 0.0, stall_gap)
@@ -157,14 +164,7 @@ def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
     for _ in range(max_rounds):
         if not active.any():
             break
-        fl = fly(t, y, bound, active, live)
-        steps += fl.steps
-        t = np.where(active, fl.t, t)
-        y = np.where(active, fl.y, y)
-        zero = active & (fl.end == ZERO)
-        zero_time = np.where(zero, t, zero_time)
-        bus_zero = np.where(zero, y[5], bus_zero)
-        live = live & ~zero
+        fl, zero = advance(active)
         if p.eddy is None:   # (with an eddy term the flux outlasts the terminal current)
             y[0] = np.where(zero, 0.0, y[0])
         stays, open_time, status = open_stop(fl.end, active, y, t, lam_start, open_time, status)
