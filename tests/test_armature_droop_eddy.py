@@ -230,11 +230,17 @@ def test_jacobian_matches_central_differences(on):
     p = _params(*BUSES[1][1:])
     rhs = _Rhs(p, np.array([on]), np.array([True]))
     y = np.array([[0.02], [0.001], [-0.3], [1e-3], [2e-4], [9.5]])
+    jacobian_matches_differences(rhs, y, [0.02, 0.001, 0.3, 1e-3, 2e-4, 9.5])
+
+
+def jacobian_matches_differences(rhs, y, scale) -> None:
+    """``rhs``'s Jacobian at the one point ``y`` (states x 1) against central differences of
+    ``rhs`` itself, each state stepped 1e-6 of its ``scale`` (numerical analysis' standard
+    check)."""
     jac = rhs.jacobian(y)[0]
-    scale = np.array([0.02, 0.001, 0.3, 1e-3, 2e-4, 9.5])
-    for col in range(6):
+    for col, sc in enumerate(scale):
         d = np.zeros_like(y)
-        d[col] = 1e-6 * scale[col]
+        d[col] = 1e-6 * sc
         fd = (rhs(y + d) - rhs(y - d))[:, 0] / (2 * d[col, 0])
         np.testing.assert_allclose(jac[:, col], fd, rtol=1e-6, atol=1e-9 * np.max(np.abs(fd)) + 1e-12,
                                    err_msg=f"column {col}")
@@ -251,13 +257,6 @@ def test_jacobian_of_the_release_with_the_eddy_loss(live):
     assert p.eddy is not None, "precondition: the eddy term"
     rhs = _Rhs(p, np.array([False]), np.array([live]), returns=np.array([1.4]))
     y = np.array([[0.02], [0.001], [-0.3], [1e-3], [2e-4], [9.5], [1e-3]])
-    jac = rhs.jacobian(y)[0]
-    assert jac.shape == (7, 7)
-    scale = np.array([0.02, 0.001, 0.3, 1e-3, 2e-4, 9.5, 1e-3])
-    for col in range(7):
-        d = np.zeros_like(y)
-        d[col] = 1e-6 * scale[col]
-        fd = (rhs(y + d) - rhs(y - d))[:, 0] / (2 * d[col, 0])
-        np.testing.assert_allclose(jac[:, col], fd, rtol=1e-6, atol=1e-9 * np.max(np.abs(fd)) + 1e-12,
-                                   err_msg=f"column {col}")
+    assert rhs.jacobian(y)[0].shape == (7, 7)
+    jacobian_matches_differences(rhs, y, [0.02, 0.001, 0.3, 1e-3, 2e-4, 9.5, 1e-3])
     assert rhs(y)[6, 0] > 0, "the eddy loss flows"
