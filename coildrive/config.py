@@ -1482,16 +1482,18 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
                            latch: "Latch | None") -> tuple[str, str] | None:
     """``(key, why)`` where a latching coil's pulses from the boost are not modelled, else
     ``None``: they are (:mod:`coildrive.design.latch_boost`) for a linear coil without an
-    eddy term, a reset winding on a second low- or high-side switch, no ``[armature]``, a
-    stiff main supply and no settle time after the reset pulse."""
+    eddy term, a reset winding on a second low- or high-side switch or one coil on a full
+    bridge whose high-side rail the boost switch feeds (both polarities; a boost capacitor,
+    which takes each fast decay back through the boost switch's body diode), no
+    ``[armature]``, a stiff main supply and no settle time after the reset pulse."""
     if armature is not None:
         return "armature", "a latching coil with a moving armature (its seat run from the boost)"
     if supply.droops:
         return "supply.source_resistance", ("a latching coil on a drooping main supply (its pulses from "
                                             "the boost: a stiff main supply only)")
-    if switch.topology == "full_bridge":
-        return "hold.mode", ("a latching coil on a full bridge (its reset polarity drives leg B, which the "
-                             "boost switch does not feed: a reset winding on a low- or high-side board only)")
+    if switch.topology == "full_bridge" and not supply.boost_capacitance > 0:
+        return "supply.boost_capacitance", ("a latching coil on a full bridge from an ideal boost (each fast "
+                                            "decay returns into the boost capacitor: give its capacitance)")
     if coil.flux_current or (latch is not None and latch.reset_coil is not None
                              and latch.reset_coil.flux_current):
         return "coil.flux_current", "a latching coil's flux-linkage curve (its pulses from the boost: a linear coil)"
@@ -1588,7 +1590,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "eddy term too, no clamp), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
                          "with [armature]: no mixed decay, no restitution with an eddy term; a "
-                         "latching coil: a linear coil and its reset winding, a stiff main supply, no [armature]")
+                         "latching coil: a linear coil (its reset winding, or a full bridge with a boost capacitor), a "
+                         "stiff main supply, no [armature]")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,

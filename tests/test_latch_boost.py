@@ -305,7 +305,8 @@ BOOST = ("[supply]\n", "[supply]\nboost = \"40 V\"\nboost_capacitance = \"220 uF
 
 
 @pytest.mark.parametrize("path,edits,args,key", [
-    (BRIDGE, [BOOST], [], "hold.mode"),
+    (BRIDGE, [BOOST], [], "reset.settle_time"),
+    (BRIDGE, [BOOST, ('boost_capacitance = "220 uF"\n', "")], [], "supply.boost_capacitance"),
     (RELAY, [BOOST], [], "supply.source_resistance"),
     (VALVE, [("current = \"0.5 A\"\n", "current = \"0.5 A\"\nsettle_time = \"5 ms\"\n")], [], "reset.settle_time"),
     (VALVE, [("[freewheel]", "[armature]\ninductance_open = \"20 mH\"\ninductance_closed = \"30 mH\"\n"

@@ -182,6 +182,12 @@ def predict_pulse(design, name: str, supply: float, coil_temp: float, zero_curre
         # (an eddy term: the diodes block where the terminal current, which the sense reads,
         # reaches zero -- the level's magnetising current is the stiff freewheel's)
         t_zero = float(np.ravel(fast.zero_time if isinstance(ind, EddyCoil) else fast.drop_time)[0])
+    elif wd.supply.boosted and full_bridge(wd):   # back into the boost capacitor (model.bridge.boost_return)
+        from ..model.bridge import RETURN_DROPS, boost_return_drop
+        from ..model.latch_waveform import return_args
+        args = return_args(wd, rel)
+        t_zero, v_level = boost_return_drop(level, i_end, v_c, *args)
+        fall = ((r_off + wd.supply.boost_resistance) * level + RETURN_DROPS * args[-1] + v_level) / l_level
     elif wd.supply.droops and wd.freewheel.type == "clamp":   # the clamped decay draws the bus down further
         from ..model.latch_waveform import clamp_decay_after, pulse
         _, _, on, bus, *_ = pulse(wd, supply, coil_temp, 1.0, 1.0, length, 2)

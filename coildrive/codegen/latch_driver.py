@@ -29,8 +29,11 @@ from .latch_header import generate_latch_header
 #: BRIDGE_ bits); a reset winding: bit 0 the set winding's switch, bit 1 the reset's.
 BRIDGE_PULSE_SWITCHES = {"set": ("high_a", "low_b"), "reset": ("high_b", "low_a")}
 WINDING_PULSE_SWITCHES = {"set": 0x1, "reset": 0x2}
-#: Pulses from the boost (two windings): bit 2 is the boost switch, on with either winding's.
+#: Pulses from the boost: the boost switch's bit, on with either pulse's switches -- bit 2
+#: with two windings, bit 4 on a full bridge (its bits 0..3 are the four switches; the boost
+#: switch feeds the bridge's high-side rail, both polarities).
 BOOST_SWITCH = 0x4
+BRIDGE_BOOST_SWITCH = 0x10
 #: The ON event's value of each pulse (docs/protocol.md, the model device's).
 PULSE_VALUE = {"set": 0, "reset": 1}
 #: Worst cycles of the latch driver's tick (every path: a request waiting for the
@@ -58,10 +61,17 @@ LATCH_BOOSTED_TICK_INSTRUCTIONS = {"cortex-m0plus": 94, "cortex-m3": 86, "cortex
 
 def pulse_switches(design: LatchDesign) -> dict[str, int]:
     """The switch mask of each pulse (``set``, ``reset``) for the design's topology."""
+    boost = boost_switch(design)
     if design.latch.topology == "full_bridge":
-        return {k: switch_mask(v) for k, v in BRIDGE_PULSE_SWITCHES.items()}
-    boost = BOOST_SWITCH if design.drive.supply.boosted else 0
+        return {k: switch_mask(v) | boost for k, v in BRIDGE_PULSE_SWITCHES.items()}
     return {k: v | boost for k, v in WINDING_PULSE_SWITCHES.items()}
+
+
+def boost_switch(design: LatchDesign) -> int:
+    """The boost switch's bit in the switch mask (0 without a boost)."""
+    if not design.drive.supply.boosted:
+        return 0
+    return BRIDGE_BOOST_SWITCH if design.latch.topology == "full_bridge" else BOOST_SWITCH
 
 
 class LatchDriverView:
@@ -81,7 +91,8 @@ class LatchDriverView:
             raise InputError(source, "thermal.max_coil_temp", "no interval between pulses keeps the coil "
                              "below its limit (the coil_temperature check), expected one for firmware-driver")
         self.bridge = lt.topology == "full_bridge"
-        masks = WINDING_PULSE_SWITCHES if not self.bridge else pulse_switches(d)
+        masks = (WINDING_PULSE_SWITCHES if not self.bridge else
+                 {k: switch_mask(v) for k, v in BRIDGE_PULSE_SWITCHES.items()})
         m = self.macro
         #: pulses from the boost: the boost switch on with the winding's, each pulse ending
         #: at its threshold code (``<prefix>_current(code)``), its ticks the time-out
@@ -102,8 +113,9 @@ class LatchDriverView:
         ]
         if self.boosted:
             self.constants += [
-                Constant(f"{m}_DRIVER_BOOST_SWITCH", BOOST_SWITCH, "bit 2: the boost switch, on with either "
-                         "pulse's winding"),
+                Constant(f"{m}_DRIVER_BOOST_SWITCH", boost_switch(d),
+                         "bit 4: the boost switch, feeding the bridge's high-side rail in either pulse"
+                         if self.bridge else "bit 2: the boost switch, on with either pulse's winding"),
                 Constant(f"{m}_DRIVER_FAULT_BOOST_TIMEOUT", int(FaultCode.BOOST_TIMEOUT),
                          "FAULT event value: a pulse reached its time-out before its threshold")]
         self.tick_type = c_uint_type(max(lt.interval_ticks, max(p.ticks for p in lt.pulses), 0x100))

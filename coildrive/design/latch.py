@@ -564,6 +564,8 @@ def _boosted(wd: Drive, pts: Points, name: str, winding: str, switches: str, cur
     lp, rel = pulse_loop(wd, pts), release_loop(wd, pts)
     b = latch_boost.pulse_figures(wd, lp, rel, pts.supply, pts.label, current, cm, margin)
     e = latch_boost.energies(wd, lp, rel, pts.sense_factor, b)
+    if full_bridge(wd):   # the release back into the boost capacitor
+        b = latch_boost.bridge_figures(wd, rel, b, e)
     t_req = boost_rise_time(wd, lp, current, lp.inductance)
     k_req = worst(t_req)
     reached = b.time_to_threshold_s is not None
@@ -581,7 +583,8 @@ def _boosted(wd: Drive, pts: Points, name: str, winding: str, switches: str, cur
         force_time_s=float(np.max(boost_rise_time(wd, lp, cm * current, lp.inductance))),
         governed_by="current threshold" if reached else "", end_current_a=b.threshold_a if reached else 0.0,
         not_reached=not_reached, supply_j=e["supply_j"], copper_j=e["copper_j"],
-        switch_sense_j=e["switch_sense_j"], freewheel_j=e["freewheel_j"], returned_j=0.0, boost_j=e["boost_j"],
+        switch_sense_j=e["switch_sense_j"], freewheel_j=e["freewheel_j"], returned_j=e["returned_j"],
+        boost_j=e["boost_j"],
         stored_j=e["stored_j"], energy_corner=pts.label(e["k"]) + (", the boost at its highest" if e["high"]
                                                                    else ", the boost at its lowest"),
         decay_time_s=e["decay_time_s"], peak_switch_voltage_v=b.switch_voltage_v,
@@ -901,6 +904,11 @@ def _cautions(drive: Drive, r: LatchResult) -> list[str]:
     boosted = [p.boost for p in r.pulses if p.boost is not None]
     if boosted:
         out += boost_cautions(boosted[0])
+    if boosted and full_bridge(drive):
+        out.append("The boost switch feeds the bridge's high-side rail and the main supply reaches it through "
+                   "its blocking diode: after each pulse the coil's current returns up the boost switch's body "
+                   "diode into the boost capacitor. Keep that path (a MOSFET's body diode, or a diode across a "
+                   "switch without one): without it the turn-off has nowhere to go.")
     if full_bridge(drive):
         out.append("Never turn on both switches of one leg (Q1 with Q2, or Q3 with Q4): give the gate "
                    "drivers a dead time (common practice).")

@@ -31,13 +31,15 @@ path's own resistance, ``boost_j``). The boost's recharge of the larger pulse's 
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import numpy as np
 
 from ..config import Drive
 from ..model import boost as model
-from ..model.circuit import freewheel_element_energy, loop
+from ..model.bridge import RETURN_DROPS, boost_return
+from ..model.circuit import freewheel_element_energy, full_bridge, loop
 from ..model.rl import decay_integrals, decay_time
 from . import boost
 from .result import BoostResult, Check
@@ -66,24 +68,35 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult) -> dict:
     ``decay_time_s`` the longest time to zero after a pulse and ``end_current_a`` the
     highest current it turns off (over both sides)."""
     trip = b.trip_max_a
-    best, t_zero_max, i_max = None, 0.0, 0.0
+    bridge = full_bridge(wd)
+    r_b = wd.supply.boost_resistance
+    best, t_zero_max, i_max, net_max = None, 0.0, 0.0, 0.0
     for high in (False, True):
         bb = boost.boost_side(wd, lp, lp.inductance, high)
         m = model.of(bb)
         t = m.threshold_time(trip, bb, sensed=True) + late(wd)
         t = np.where(np.isfinite(t), t, 0.0)   # never reached: no pulse there (the check fails)
-        i_top = m.state(t, bb)[0]
+        i_top, v_end = m.state(t, bb)
         s_on = m.square_integral(t, bb)
         drawn = m.energy_drawn(t, bb)
-        t_zero = decay_time(0.0, i_top, rel.r_off, rel.v_off, lp.inductance)
-        q_d, s_d = decay_integrals(t_zero, i_top, rel.r_off, rel.v_off, lp.inductance)
         sense = wd.board.sense
         r_sense = sense.resistance * sense_factor
+        if bridge:   # back into the boost capacitor (module docstring, *On a full bridge*)
+            back = return_decay(wd, rel, i_top, v_end, bb.c)
+            t_zero, q_d, returned = back.zero_time, back.charge, back.returned
+            fw = RETURN_DROPS * rel.diode(wd) * q_d
+            # int i^2 dt of the decay by its energy balance: the field's 1/2 L i^2 into the
+            # loop's resistance, the diodes and the capacitor
+            s_d = (0.5 * lp.inductance * i_top**2 - fw - returned) / (rel.r_off + r_b)
+        else:
+            t_zero = decay_time(0.0, i_top, rel.r_off, rel.v_off, lp.inductance)
+            q_d, s_d = decay_integrals(t_zero, i_top, rel.r_off, rel.v_off, lp.inductance)
+            fw, returned = freewheel_element_energy(wd, rel, q_d, s_d), 0.0 * drawn
         parts = {"supply_j": drawn, "copper_j": lp.r_coil * (s_on + s_d),
-                 "switch_sense_j": wd.switch.on_resistance * s_on
-                 + r_sense * (s_on + (s_d if sense.position == "coil" else 0.0)),
-                 "boost_j": wd.supply.boost_resistance * s_on,
-                 "freewheel_j": freewheel_element_energy(wd, rel, q_d, s_d),
+                 "switch_sense_j": (2.0 if bridge else 1.0) * wd.switch.on_resistance * s_on
+                 + r_sense * (s_on + (s_d if bridge or sense.position == "coil" else 0.0)),
+                 "boost_j": r_b * (s_on + (s_d if bridge else 0.0)),
+                 "freewheel_j": fw, "returned_j": returned,
                  "stored_j": 0.5 * lp.inductance * i_top**2}
         k = int(np.argmax(drawn))
         if best is None or float(drawn[k]) > best["supply_j"]:
@@ -91,7 +104,32 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult) -> dict:
             best.update(k=k, high=high)
         t_zero_max = max(t_zero_max, float(np.max(t_zero)))
         i_max = max(i_max, float(np.max(i_top)))
-    return {**best, "decay_time_s": t_zero_max, "end_current_a": i_max}
+        net_max = max(net_max, float(np.max(drawn - returned)))
+    return {**best, "decay_time_s": t_zero_max, "end_current_a": i_max, "net_j": net_max}
+
+
+def return_decay(wd: Drive, rel, i0, v_c, c):
+    """A full bridge's fast decay of ``i0`` A after a pulse from the boost, back into the
+    boost capacitor of ``c`` F at ``v_c`` V at the points of the release loop ``rel``
+    (:func:`coildrive.model.bridge.boost_return`)."""
+    return boost_return(i0, v_c, c, rel.r_off, wd.supply.boost_resistance, rel.inductance, rel.diode(wd))
+
+
+def bridge_figures(wd: Drive, rel, b: BoostResult, e: dict) -> BoostResult:
+    """A full bridge's pulse figures (``b``) with its release back into the boost capacitor:
+    the switch voltage one body diode and ``R_b i`` above the boosted peak's (the rail
+    rides on ``C_b`` through the boost switch's body diode; from the boost at full charge
+    and at the pulse's end), and the recharge of what the boost net gives (``e["net_j"]``:
+    drawn less returned, the most over the points and both sides) at ``boost_power``."""
+    extra = float(np.max(rel.diode(wd))) + wd.supply.boost_resistance * b.end_current_max_a
+    out = dataclasses.replace(b, switch_voltage_v=b.switch_voltage_v + extra,
+                              end_switch_voltage_v=b.end_switch_voltage_v + extra)
+    if b.recharge_time_s is None:
+        return out
+    recharge = float(model.recharge_time(e["net_j"], wd.supply.boost_power))
+    return dataclasses.replace(out, recharge_time_s=recharge,
+                               min_interval_s=None if b.min_interval_s is None else
+                               b.min_interval_s - b.recharge_time_s + recharge)
 
 
 def checks(name: str, b: BoostResult, wd: Drive) -> list[Check]:
@@ -166,7 +204,8 @@ def sample_figures(wd: Drive, lp, rel, sense_factor, b: BoostResult, current: fl
     out = t_trip > timeout
     end = np.where(out, m.state(np.minimum(t_trip, timeout), bb)[0], trip)
     t_long = np.minimum(t_trip + late(wd), timeout)
-    i_top = m.state(t_long, bb)[0]
-    return (m.threshold_time(current, bb), end, m.energy_drawn(t_long, bb),
-            decay_time(0.0, i_top, rel.r_off, rel.v_off, lp.inductance), out)
+    i_top, v_c = m.state(t_long, bb)
+    t_zero = (return_decay(wd, rel, i_top, v_c, bb.c).zero_time if full_bridge(wd) else
+              decay_time(0.0, i_top, rel.r_off, rel.v_off, lp.inductance))
+    return m.threshold_time(current, bb), end, m.energy_drawn(t_long, bb), t_zero, out
 

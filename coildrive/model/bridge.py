@@ -138,13 +138,16 @@ class PumpUp:
     charge: np.ndarray
 
 
-def pump_up(i0, v1, capacitance, r_off, inductance, v_diode) -> PumpUp:
+def pump_up(i0, v1, capacitance, r_off, inductance, v_diode, drops: int = 2) -> PumpUp:
     """The bus voltage after the fast decay of ``i0`` A into a capacitance of
-    ``capacitance`` F charged to ``v1`` V, through the loop resistance ``r_off`` ohm and two
-    body-diode drops ``v_diode`` V (the supply cannot take current back).
+    ``capacitance`` F charged to ``v1`` V, through the loop resistance ``r_off`` ohm and
+    ``drops`` body-diode drops ``v_diode`` V (the supply cannot take current back): two
+    into the bulk capacitance; three into a boost capacitor behind the boost switch's body
+    diode (a latching coil on a full bridge from the boost, :mod:`coildrive.design.latch_boost`;
+    a linear coil only).
 
-    With ``q`` the charge into the capacitor and ``x = q + C (v1 + 2 V_d)``, the loop
-    gives ``L x'' + R x' + x / C = 0``, ``x(0) = C (v1 + 2 V_d)``, ``x'(0) = i0``: the
+    With ``q`` the charge into the capacitor and ``x = q + C (v1 + n V_d)`` (``n`` the
+    drops), the loop gives ``L x'' + R x' + x / C = 0``, ``x(0) = C (v1 + n V_d)``, ``x'(0) = i0``: the
     series RLC circuit of any circuits textbook (:mod:`coildrive.model.rlc`), with
     ``alpha = R / 2L`` and ``omega0 = 1 / sqrt(LC)``. The current ``i = x'`` stops at its
     first zero:
@@ -162,6 +165,8 @@ def pump_up(i0, v1, capacitance, r_off, inductance, v_diode) -> PumpUp:
     :class:`~coildrive.model.eddy.EddyCoil` (an eddy resistance across the branch):
     :func:`_eddy_pump_up`, where ``i0`` is the magnetising current at the turn-off.
     """
+    if isinstance(inductance, (EddyCoil, FluxCoil)) and drops != 2:
+        raise ValueError("a saturating coil's or an eddy term's pump-up takes two body-diode drops")
     if isinstance(inductance, EddyCoil):
         return _eddy_pump_up(i0, v1, capacitance, r_off, inductance, v_diode)
     if isinstance(inductance, FluxCoil):
@@ -169,13 +174,58 @@ def pump_up(i0, v1, capacitance, r_off, inductance, v_diode) -> PumpUp:
     i0, v1, c = (np.asarray(x, float) for x in (i0, v1, capacitance))
     r, ind = np.asarray(r_off, float), np.asarray(inductance, float)
     i0, v1, c, r, ind, vd = np.broadcast_arrays(i0, v1, c, r, ind, np.asarray(v_diode, float))
-    a = c * (v1 + 2.0 * vd)
+    a = c * (v1 + drops * vd)
     t_zero = rlc.first_zero(a, i0, r, ind, c)
     x, _ = rlc.state(t_zero, a, i0, r, ind, c)
     q = x - a
     v2 = v1 + q / c
     return PumpUp(v2, v2 - v1, 0.5 * c * (v2**2 - v1**2), t_zero, q)
 
+
+
+def pump_up_trace(t, i0, v1, capacitance, r_off, inductance, v_diode, drops: int = 2):
+    """:func:`pump_up`'s current (A) and capacitor (V) ``t`` s into the decay (a linear coil;
+    one point, ``t`` up to its ``zero_time``): ``i = x'``, ``v = x / C - n V_d``."""
+    a = capacitance * (v1 + drops * v_diode)
+    x, i = rlc.state(t, a, i0, r_off, inductance, capacitance)
+    return i, x / capacitance - drops * v_diode
+
+
+#: Body-diode drops of a full bridge's fast decay back into a boost capacitor: the bridge's
+#: two (the pulse's low-side leg's, the other leg's high side's) and the boost switch's.
+RETURN_DROPS = 3
+
+
+def boost_return(i0, v_c, c, r_off, r_b, inductance, v_diode) -> PumpUp:
+    """A full bridge whose high-side rail the boost switch feeds (a latching coil's pulses
+    from the boost, :mod:`coildrive.design.latch_boost`): the fast decay of ``i0`` A after a
+    pulse goes up the boost switch's body diode back into the boost capacitor of ``c`` F at
+    ``v_c`` V (the main supply's blocking diode keeps it off the main bus), through the
+    release loop's ``r_off`` ohm, the boost path's ``r_b`` and :data:`RETURN_DROPS` drops
+    of ``v_diode`` V: :func:`pump_up`'s series RLC onto ``c`` (a linear coil)."""
+    return pump_up(i0, v_c, c, np.asarray(r_off, float) + r_b, inductance, v_diode, drops=RETURN_DROPS)
+
+
+def boost_return_trace(t, i0, v_c, c, r_off, r_b, inductance, v_diode):
+    """:func:`boost_return`'s current (A) and boost capacitor (V) ``t`` s into the decay."""
+    return pump_up_trace(t, i0, v_c, c, r_off + r_b, inductance, v_diode, drops=RETURN_DROPS)
+
+
+def boost_return_drop(i_level, i0, v_c, c, r_off, r_b, inductance, v_diode) -> tuple[float, float]:
+    """When :func:`boost_return`'s current (one point) falls to ``i_level`` A (``0 <=
+    i_level <= i0``): ``(t s, the capacitor V then)``. The current falls monotonically to
+    its first zero (``L di/dt = -(R i + n V_d + v_C)`` with every term positive), so a
+    bisection of the closed form on that stretch (:data:`RETURN_BISECTION_STEPS` halvings)."""
+    lo, hi = 0.0, float(boost_return(i0, v_c, c, r_off, r_b, inductance, v_diode).zero_time)
+    for _ in range(RETURN_BISECTION_STEPS):
+        mid = 0.5 * (lo + hi)
+        i_mid = float(boost_return_trace(mid, i0, v_c, c, r_off, r_b, inductance, v_diode)[0])
+        lo, hi = (mid, hi) if i_mid > i_level else (lo, mid)
+    return hi, float(boost_return_trace(hi, i0, v_c, c, r_off, r_b, inductance, v_diode)[1])
+
+
+#: Halvings of :func:`boost_return_drop`'s bracket: 2^-60 of the decay, far below a sample.
+RETURN_BISECTION_STEPS = 60
 
 
 #: Runge-Kutta steps of a saturating coil's pump-up, over the current from ``i0`` to 0.

@@ -43,6 +43,7 @@ from . import boost as boost_model
 from . import bus_decay, eddy, flux_bus, flux_bus_decay
 from . import supply as bus_model
 from .eddy import EddyCoil
+from .bridge import boost_return, boost_return_trace
 from .circuit import full_bridge, loop
 from .flux import FluxCoil
 from .flux_bus_decay import fast_decays
@@ -120,6 +121,12 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
         t_d = np.linspace(0.0, tz, points + 1)[1:]
         i_d, bus_d = bus_decay.clamp_trace(t_d, i_top, float(bus[-1]), *_clamp_args(drive, rel))
         i_d[-1] = 0.0   # (the zero, to rounding)
+    elif drive.supply.boosted and full_bridge(drive):   # back into the boost capacitor, up Q_b's body diode
+        tz = float(boost_return(i_top, float(v_c[-1]), *return_args(drive, rel)).zero_time)
+        t_d = np.linspace(0.0, tz, points + 1)[1:]
+        i_d, v_cd = boost_return_trace(t_d, i_top, float(v_c[-1]), *return_args(drive, rel))
+        i_d[-1] = 0.0   # (the zero, to rounding)
+        bus_d = v_cd + float(rel.diode(drive)) + drive.supply.boost_resistance * i_d   # the bridge's rail
     elif fast is None:
         tz = float(decay_time(0.0, i_top, r_off, v_off, ind))
         t_d = np.linspace(0.0, tz, points + 1)[1:]
@@ -139,6 +146,15 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
     on = np.concatenate([np.ones(t_on.size), np.zeros(t_d.size)])
     gap = None if gap_on is None else np.concatenate([gap_on, np.zeros(t_d.size)])
     return t, i, on, np.concatenate([bus, bus_d]), t_pulse + tz, rel, gap
+
+
+def return_args(drive: Drive, rel) -> tuple:
+    """A full bridge's return into the boost capacitor at one point
+    (:func:`coildrive.model.bridge.boost_return`): ``(C_b, r_off, R_b, L, V_d)``, the
+    capacitor at its nominal capacitance."""
+    s = drive.supply
+    return (s.boost_capacitance, *(float(np.ravel(x)[0]) for x in (rel.r_off, s.boost_resistance, rel.inductance,
+                                                                     rel.diode(drive))))
 
 
 def _fast_args(drive: Drive, rel, i0: float, v0: float) -> tuple:
@@ -195,12 +211,27 @@ def _boost_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp: fl
     """The boost capacitor (V) through both pulses: each pulse draws it down from full
     charge, then the converter recharges it at ``boost_power``
     (:func:`coildrive.model.boost.voltage_trace`); the reset pulse starts from full charge
-    (the interval includes the recharge)."""
+    (the interval includes the recharge). A full bridge's fast decay returns into it after
+    each pulse (:func:`coildrive.model.bridge.boost_return`): the converter's charge from
+    the pulse's end is added in energy, ``v^2 = v_r^2 + 2 P (t - t_end) / C`` up to ``V_b``
+    (``v_r`` the return's capacitor; their coupling in the decay left out, as the design's
+    recharge of the net energy does)."""
     out = []
     for wd, start, length, part in ((drive, 0.0, set_time, time < gap), (reset_drive, gap, reset_time, time >= gap)):
         lp = loop(wd, supply, coil_temp, r_factor, l_factor)
         b = boost_of(wd, float(lp.r_on), float(lp.inductance))
-        out.append(np.where(part, boost_model.voltage_trace(time - start, length, b, wd.supply.boost_power), 0.0))
+        trace = boost_model.voltage_trace(time - start, length, b, wd.supply.boost_power)
+        if full_bridge(wd):
+            rel = loop(wd, supply, coil_temp, r_factor, l_factor, path="release")
+            i_end, v_end = (float(x) for x in boost_model.state(length, b))
+            args = return_args(wd, rel)
+            dt = np.maximum(time - start - length, 0.0)
+            v_r = boost_return_trace(np.minimum(dt, float(boost_return(i_end, v_end, *args).zero_time)),
+                                     i_end, v_end, *args)[1]
+            after = boost_model.recharge_voltage(v_r, dt, wd.supply.boost_capacitance, wd.supply.boost_power,
+                                                 wd.supply.boost)
+            trace = np.where(time - start <= length, trace, after)
+        out.append(np.where(part, trace, 0.0))
     return out[0] + out[1]
 
 
