@@ -1534,7 +1534,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     an on/off cycle (the peak's heat is the run's copper integral, with an eddy term plus its core loss
     bounded by the first law: :func:`coildrive.design.boost_armature.peak_heat`).
     A latching coil's set and reset pulses from the boost, each ending at its own threshold
-    (:mod:`coildrive.design.latch_boost`): what :func:`_boosted_latch_refusal` allows.
+    (:mod:`coildrive.design.latch_boost`; on a full bridge the boost feeds both legs' high
+    side and each fast decay returns into the boost capacitor): what
+    :func:`_boosted_latch_refusal` allows.
     Anything else is refused in one line."""
     if not supply.boosted:
         return

@@ -6,7 +6,8 @@
 driver runs each pulse for the header's SET_PULSE_TICKS / RESET_PULSE_TICKS scheduler
 ticks and starts no pulse sooner than MIN_INTERVAL_TICKS after the last one's start (a
 request waits, it is not dropped); docs/firmware.md, *A latching coil*. Pulses from the
-boost: the boost switch on with the winding's, each pulse ending at the tick whose
+boost: the boost switch on with the winding's (on a full bridge with the pulse's two,
+bit 4), each pulse ending at the tick whose
 current-sense reading (``<prefix>_current(code)``) reaches its threshold code, its ticks the
 time-out (then a FAULT event).
 

@@ -23,10 +23,11 @@ zero, the coil's temperature (:mod:`coildrive.model.latch`: the larger pulse's c
 heat every interval, from the hottest ambient, up to ``thermal.max_coil_temp``), and the
 capacitor's recharge to the bus the pulses were designed from.
 
-From the boost (``[supply] boost``; a linear coil's two windings on a stiff main supply):
-each pulse ends at its own current threshold with a time-out, its energy is drawn from
-the boost, and the boost's recharge enters the interval
-(:mod:`coildrive.design.latch_boost`).
+From the boost (``[supply] boost``; a linear coil's two windings, or one coil on a full
+bridge whose high-side rail the boost switch feeds, on a stiff main supply): each pulse
+ends at its own current threshold with a time-out, its energy is drawn from the boost
+(on a bridge its fast decay returns into the boost capacitor), and the boost's recharge
+enters the interval (:mod:`coildrive.design.latch_boost`).
 
 A flux-linkage curve (the set winding's, or the bridge's one coil's) takes every segment
 on the curve (:mod:`coildrive.model.flux`; on a drooping bus :mod:`coildrive.model.flux_bus`),
@@ -108,13 +109,14 @@ class PulseResult:
     switch during the decay too, whose current the bus drives through the coil and the
     clamp), ``copper_j`` (the coil's
     copper, pulse and decay), ``switch_sense_j`` (the switches and the sense resistor),
-    ``freewheel_j`` (the freewheel path: a bridge's two body diodes), ``returned_j`` (back
-    to the bus: a bridge's fast decay; 0 otherwise), ``eddy_j`` (an eddy-current term's
+    ``freewheel_j`` (the freewheel path: a bridge's two body diodes; from the boost three),
+    ``returned_j`` (back to the bus: a bridge's fast decay; from the boost back into the
+    boost capacitor; 0 otherwise), ``eddy_j`` (an eddy-current term's
     resistance, on, freewheeling and while the flux dies through it alone; 0 without one);
     ``supply_j`` is the sum of the other five. From the boost (``[supply] boost``,
     :mod:`coildrive.design.latch_boost`): ``supply_j`` is the boost's, ``boost_j`` the boost
     path's ``R_b`` (``supply_j`` the sum of copper, switch and sense, boost path and
-    freewheel), ``boost`` the pulse's threshold, time-out, droop, energy and recharge (the
+    freewheel, and on a bridge ``returned_j``), ``boost`` the pulse's threshold, time-out, droop, energy and recharge (the
     boosted peak's :class:`~coildrive.design.result.BoostResult`), ``ticks`` the time-out
     and ``shortest_s`` the fastest time to the threshold. ``stored_j``: the energy in the coil's field when the pulse ends (there), which
     its decay takes out again: ``int_0^I i dpsi`` on a flux-linkage curve (``I psi(I) -

@@ -18,6 +18,16 @@ boosted peak does (:mod:`coildrive.design.boost`, physics :mod:`coildrive.model.
 * the winding's freewheel path takes the current to zero after the turn-off, whichever
   rail fed it; the switch sees the boost at full charge plus the freewheel voltage.
 
+*On a full bridge* (one coil, both polarities) the boost switch feeds the bridge's
+high-side rail and the main supply reaches it through a blocking diode: after each pulse
+the current returns up two body diodes and the boost switch's into the boost capacitor
+(:func:`return_decay`, :func:`coildrive.model.bridge.boost_return`), never into the main
+bus. The pulse's energy balance gains ``returned_j`` (the capacitor's rise), the decay's
+``int i^2 dt`` comes from its own balance, ``R_b`` is in the decay too, and the freewheel is
+the three diodes; the switches see one diode and ``R_b i`` more than the boosted peak's
+(the rail rides on the capacitor), and the boost recharges only what it net gives
+(:func:`bridge_figures`).
+
 Energy per pulse (the corner and side where the boost gives the most): from zero current
 back to zero the capacitor's ``1/2 C (V_b^2 - v_C^2)`` is exactly what the loop takes::
 
@@ -64,9 +74,11 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult) -> dict:
     """One pulse's energies at the corner and side where the boost gives the most (the
     module docstring's balance; J): ``supply_j`` (from the boost), ``copper_j``,
     ``switch_sense_j``, ``boost_j`` (the boost path's ``R_b``), ``freewheel_j``,
+    ``returned_j`` (a full bridge's back into the boost capacitor; 0 otherwise),
     ``stored_j`` (``1/2 L I^2`` at the turn-off), and ``k`` the point, ``high`` the side;
-    ``decay_time_s`` the longest time to zero after a pulse and ``end_current_a`` the
-    highest current it turns off (over both sides)."""
+    ``decay_time_s`` the longest time to zero after a pulse, ``end_current_a`` the
+    highest current it turns off and ``net_j`` the most the boost net gives (drawn less
+    returned; over both sides)."""
     trip = b.trip_max_a
     bridge = full_bridge(wd)
     r_b = wd.supply.boost_resistance

@@ -21,12 +21,15 @@ source resistance, which rises as it does (:func:`fast_decay_after`, :func:`fast
 per winding; the windings' magnetic coupling is not modelled (each decays through its own
 freewheel path).
 
-From the boost (``[supply] boost``, two windings): each pulse's on-time is the boost
-capacitor's series RLC discharge into the winding (:mod:`coildrive.model.boost`, at its
-nominal charge and capacitance), the top of the coil the capacitor less ``R_b i``; after
-the pulse the winding's freewheel path returns its current to the top, which the main
-supply holds (the boost switch is off). A ``boost_v`` column is the capacitor through
-both pulses, recharged at ``boost_power`` after each.
+From the boost (``[supply] boost``, two windings or a full bridge): each pulse's on-time
+is the boost capacitor's series RLC discharge into the winding (:mod:`coildrive.model.boost`,
+at its nominal charge and capacitance), the top of the coil the capacitor less ``R_b i``;
+after the pulse the winding's freewheel path returns its current to the top, which the
+main supply holds (the boost switch is off). On a full bridge the boost switch feeds the
+high-side rail and the fast decay returns up its body diode into the boost capacitor
+(:func:`coildrive.model.bridge.boost_return`): the rail is the capacitor + ``V_d + R_b i``
+then. A ``boost_v`` column is the capacitor through both pulses, recharged at
+``boost_power`` after each.
 
 Units: s, A, V.
 """
