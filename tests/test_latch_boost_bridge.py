@@ -227,13 +227,14 @@ def test_design_simulate_and_header_end_to_end(tmp_path, valve):
 
 @pytest.mark.compiler
 def test_driver_switches_the_boost_for_both_pulses_and_runs_in_the_loop(tmp_path, valve):
-    """gcc (C99, -Wall -Wextra -Werror -pedantic, tests/driver_harness.py) builds the
+    """gcc (C99, -Wall -Wextra -Werror -pedantic, tests/driver_harness.py; and avr-gcc +
+    simavr, the same lines within the tick budget) builds the
     reference latch driver for the bridge and runs test_latch_boost_driver's script of
     readings: each pulse's switches are its two bridge switches and the boost switch's bit
     4 (never both switches of one leg), ending at the tick that reads its code or at its
     time-out with a FAULT. In the loop (the model's device: plumbing) check passes the
     example's coil and fails one with three times the inductance (every pulse times out)."""
-    from driver_harness import run_host, write_latch_sources
+    from driver_harness import run_avr, run_host, write_latch_sources
     from test_emulator_device import capture_of, run as run_device
     from test_latch_boost_driver import script
     from test_latch_driver import header_value, lines
@@ -242,7 +243,7 @@ def test_driver_switches_the_boost_for_both_pulses_and_runs_in_the_loop(tmp_path
     from coildrive.bench.latch_firmware_device import LatchFirmwareDevice
     from coildrive.bench.messages import EventKind, FaultCode
     from coildrive.codegen.host_build import build_latch_firmware
-    from coildrive.codegen.latch_driver import pulse_switches
+    from coildrive.codegen.latch_driver import LATCH_BOOSTED_TICK_CYCLES, pulse_switches
 
     path, _, d = valve
     (tmp_path / "host").mkdir()
@@ -259,6 +260,12 @@ def test_driver_switches_the_boost_for_both_pulses_and_runs_in_the_loop(tmp_path
     # the set pulse ends at its code's tick, the reset pulse (never read) at its time-out with a FAULT
     assert offs[0] - ons[0] == 2 and offs[1] - ons[1] == d.latch.pulses[1].ticks
     assert faults == [int(FaultCode.BOOST_TIMEOUT)]
+    # avr-gcc + simavr (ATmega328P) run the same program and print the same lines, within the
+    # boosted latch driver's tick budget (LATCH_BOOSTED_TICK_CYCLES: the same code path)
+    (tmp_path / "avr").mkdir()
+    avr = run_avr(tmp_path / "avr", d, script(d), writer=write_latch_sources)
+    assert [x for x in avr.lines if not x.startswith("c ")] == [x for x in run.lines if not x.startswith("c ")]
+    assert avr.cycles()["tick"] <= LATCH_BOOSTED_TICK_CYCLES["avr"]
     r = CliRunner().invoke(app, ["firmware-driver", str(path), "--out", str(tmp_path / "fw")])
     assert r.exit_code == 0, r.output
     lib = build_latch_firmware(tmp_path / "fw", d)

@@ -295,14 +295,15 @@ def boost_result(drive: Drive, grid: CornerGrid, res, rate: float) -> BoostResul
 
 
 def boost_figures(drive: Drive, lp, rel, supply, label, rate: float, thr: tuple[float, int, float],
-                  late: float, margin: float, runs=None) -> BoostResult:
+                  late: float, margin: float, runs=None, return_drop=None) -> BoostResult:
     """A pulse from the boost that ends at a current threshold, over the points of ``lp``
     (the loop with its switch on; ``rel`` the turn-off's, ``supply`` the main supply V at
     each point, ``label(k)`` names point ``k``): the threshold ``thr``
     (:func:`threshold`), seen up to ``late`` s late, the time-out the slowest x ``margin``
     in ticks at ``rate`` Hz, +1. The boosted peak's (:func:`boost_result`, with a moving
     armature its ``runs``) and each pulse of a latching coil's
-    (:mod:`coildrive.design.latch_boost`)."""
+    (:mod:`coildrive.design.latch_boost`; ``return_drop(i)``: V the switch sees above the
+    turn-off's voltage at ``i`` A, a full bridge's return into the boost capacitor)."""
     s = drive.supply
     i_th, code, i_trip = thr
     slow = boost_side(drive, lp, lp.inductance, False)
@@ -345,6 +346,8 @@ def boost_figures(drive: Drive, lp, rel, supply, label, rate: float, thr: tuple[
     v_top = s.boost * (1.0 + s.boost_tolerance)
     v_sw = _turn_off_voltage(drive, rel, v_top, i_end)
     v_sw_end = _turn_off_voltage(drive, rel, v_end, i_end)
+    if return_drop is not None:
+        v_sw, v_sw_end = v_sw + return_drop(i_end), v_sw_end + return_drop(i_end)
     k_v = int(np.argmax(v_sw))
     timeout = (math.ceil(float(t_slow[k_slow]) * margin * rate - 1e-9) + 1) if reached else None
     recharge = interval = None

@@ -567,7 +567,7 @@ def _boosted(wd: Drive, pts: Points, name: str, winding: str, switches: str, cur
     b = latch_boost.pulse_figures(wd, lp, rel, pts.supply, pts.label, current, cm, margin)
     e = latch_boost.energies(wd, lp, rel, pts.sense_factor, b)
     if full_bridge(wd):   # the release back into the boost capacitor
-        b = latch_boost.bridge_figures(wd, rel, b, e)
+        b = latch_boost.bridge_figures(wd, b, e)
     t_req = boost_rise_time(wd, lp, current, lp.inductance)
     k_req = worst(t_req)
     reached = b.time_to_threshold_s is not None

@@ -67,7 +67,16 @@ def pulse_figures(wd: Drive, lp, rel, supply, label, current: float, current_mar
     points of ``lp`` (the winding ``wd``'s loop), ending at ``current_margin`` x
     ``current`` A, the time-out the slowest x ``margin``."""
     return boost.boost_figures(wd, lp, rel, supply, label, wd.board.tick.rate,
-                               boost.threshold(wd, current_margin * current), late(wd), margin)
+                               boost.threshold(wd, current_margin * current), late(wd), margin,
+                               return_drop=return_drop(wd, rel) if full_bridge(wd) else None)
+
+
+def return_drop(wd: Drive, rel):
+    """On a full bridge, what the switches see above the boosted peak's turn-off voltage at
+    ``i`` A (a function of it): the rail rides on the boost capacitor up the boost switch's
+    body diode and ``R_b`` (module docstring), one drop and ``R_b i``."""
+    v_d, r_b = rel.diode(wd), wd.supply.boost_resistance
+    return lambda i: v_d + r_b * np.asarray(i, float)
 
 
 def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult) -> dict:
@@ -127,19 +136,14 @@ def return_decay(wd: Drive, rel, i0, v_c, c):
     return boost_return(i0, v_c, c, rel.r_off, wd.supply.boost_resistance, rel.inductance, rel.diode(wd))
 
 
-def bridge_figures(wd: Drive, rel, b: BoostResult, e: dict) -> BoostResult:
-    """A full bridge's pulse figures (``b``) with its release back into the boost capacitor:
-    the switch voltage one body diode and ``R_b i`` above the boosted peak's (the rail
-    rides on ``C_b`` through the boost switch's body diode; from the boost at full charge
-    and at the pulse's end), and the recharge of what the boost net gives (``e["net_j"]``:
-    drawn less returned, the most over the points and both sides) at ``boost_power``."""
-    extra = float(np.max(rel.diode(wd))) + wd.supply.boost_resistance * b.end_current_max_a
-    out = dataclasses.replace(b, switch_voltage_v=b.switch_voltage_v + extra,
-                              end_switch_voltage_v=b.end_switch_voltage_v + extra)
+def bridge_figures(wd: Drive, b: BoostResult, e: dict) -> BoostResult:
+    """A full bridge's pulse figures (``b``) with the boost's recharge of what it net gives
+    (``e["net_j"]``: drawn less returned into the capacitor, the most over the points and
+    both sides) at ``boost_power``, and the interval it sets."""
     if b.recharge_time_s is None:
-        return out
+        return b
     recharge = float(model.recharge_time(e["net_j"], wd.supply.boost_power))
-    return dataclasses.replace(out, recharge_time_s=recharge,
+    return dataclasses.replace(b, recharge_time_s=recharge,
                                min_interval_s=None if b.min_interval_s is None else
                                b.min_interval_s - b.recharge_time_s + recharge)
 
