@@ -2,7 +2,7 @@
 latch_boost.py): the boost switch feeds the bridge's high-side rail, the main supply
 reaches it through its blocking diode, and after each pulse the fast decay returns up the
 boost switch's body diode into the boost capacitor (docs/design-method.md, *Pulses from the
-boost*, on a full bridge).
+boost*, on a full bridge), on the example examples/latching/sprinkler-valve-bridge-boost-12v.toml.
 
 References:
 
@@ -42,28 +42,13 @@ from coildrive.model import boost as boost_model
 from coildrive.model.bridge import boost_return, boost_return_trace
 from coildrive.model.circuit import loop
 
-BRIDGE = EXAMPLES / "latching" / "irrigation-valve-bridge-12v.toml"
-BOOST = ('sink = true                  # the battery takes the returned energy back\n',
-         'sink = true\nboost = "40 V"\nboost_tolerance = 0.05\nboost_capacitance = "220 uF"\n'
-         'boost_capacitance_tolerance = 0.2\nboost_resistance = "0.15 ohm"\nboost_power = "2 W"\n')
-
-
-def bridge_boost_drive(tmp_path):
-    """The irrigation valve's bridge with both pulses from a 40 V boost capacitor, each
-    until 1.2 x its current (no settle time: a pulse from the boost ends at its threshold)."""
-    text = BRIDGE.read_text().replace(*BOOST)
-    text = text.replace('settle_time = "20 ms"        # the plunger\'s travel after the current is there\n', "")
-    text = text.replace('settle_time = "20 ms"\n', "").replace("margin = 1.5\n", "margin = 1.5\ncurrent_margin = 1.2\n")
-    path = tmp_path / "irrigation-boost.toml"
-    path.write_text(text)
-    return path
+VALVE = EXAMPLES / "latching" / "sprinkler-valve-bridge-boost-12v.toml"
 
 
 @pytest.fixture(scope="module")
-def valve(tmp_path_factory):
-    path = bridge_boost_drive(tmp_path_factory.mktemp("bridge-boost"))
-    drive = load_drive(path)
-    return path, drive, design_latch(drive)
+def valve():
+    drive = load_drive(VALVE)
+    return VALVE, drive, design_latch(drive)
 
 
 def _netlist(e, reset, trip, late, tend, step, t_from, t_to):
