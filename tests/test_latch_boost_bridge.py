@@ -188,6 +188,8 @@ def test_design_simulate_and_header_end_to_end(tmp_path, valve):
     assert res.exit_code == 0, res.output
     doc = json.loads(res.stdout)
     assert doc["latch"]["topology"] == "full_bridge" and doc["latch"]["governed_by"] == "the boost's recharge"
+    table = runner.invoke(app, ["design", str(path)], terminal_width=200)
+    assert table.exit_code == 0 and "back into the boost capacitor" in table.stdout, table.output
     assert all(p["returned_j"] > 0 and p["boost"]["threshold_code"] > 0 for p in doc["latch"]["pulses"])
     assert any("up the boost switch's body diode" in c for c in doc["cautions"])
     header = (tmp_path / "h.h").read_text()

@@ -15,7 +15,10 @@ from .report import checks_table
 def latch_table(d: LatchDesign) -> Table:
     """rich table of both pulses and the interval."""
     r = d.latch
+    boosted = r.pulses[0].boost is not None
     circuit = ("full bridge: set Q1 + Q4, reset Q3 + Q2 (the other polarity), fast decay after each"
+               + (" (the boost switch feeds the high-side rail; the decay returns into the boost capacitor)"
+                  if boosted else "")
                if r.topology == "full_bridge" else
                f"two windings, each on its own {r.topology.replace('_', '-')} switch and freewheel path")
     t = Table(title=f"coildrive design: {d.drive.name} on {d.drive.board.name} (latching coil)")
@@ -52,6 +55,7 @@ def latch_table(d: LatchDesign) -> Table:
                              f"{b.timeout_ticks} ticks; the capacitor falls to {b.lowest_boost_v:.4g} V "
                              f"({b.lowest_boost_corner}); up to {b.end_current_max_a:.4g} A at the turn-off"
                              + (f"; recharged in {b.recharge_time_s * 1e3:.4g} ms at {b.power_w:g} W"
+                                + (" (what the return leaves)" if p.returned_j else "")
                                 if b.recharge_time_s is not None else "")) if b.timeout_ticks else
                       escape(f"threshold code {b.threshold_code}"))
         source = "the boost" if p.boost is not None else "the supply"
@@ -60,6 +64,8 @@ def latch_table(d: LatchDesign) -> Table:
                          f"sense {p.switch_sense_j * 1e3:.4g} mJ, freewheel path {p.freewheel_j * 1e3:.4g} mJ, "
                          + (f"boost path {p.boost_j * 1e3:.4g} mJ" if p.boost is not None else
                             f"back to the bus {p.returned_j * 1e3:.4g} mJ")
+                         + (f", back into the boost capacitor {p.returned_j * 1e3:.4g} mJ"
+                            if p.boost is not None and p.returned_j else "")
                          + (f", the armature {p.armature_j * 1e3:.4g} mJ" if p.armature_j else "")
                          + (f", the eddy currents {p.eddy_j * 1e3:.4g} mJ" if p.eddy_j else "")
                          + f"; in the field at its end {p.stored_j * 1e3:.4g} mJ"))
