@@ -21,6 +21,8 @@ References:
   voltage in the decay (the capacitor at the turn-off
   plus two body diodes and ``R_b i``) and under the design's figure; on the slow side the
   longest pulse and the capacitor's lowest voltage;
+* Hypothesis: the return never takes more than the field's energy, and its current only
+  falls to its zero;
 * hand-worked: the energy balance of the decay (``1/2 L I^2`` = the loop's copper, the
   three diodes and the capacitor's rise), the capacitor never back above its charge.
 """
@@ -29,6 +31,8 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from typer.testing import CliRunner
 
 from conftest import EXAMPLES
@@ -279,3 +283,18 @@ def test_monte_carlo_never_outside_the_corner_envelope(valve):
         assert f["decay_time_s"]["max"] <= p.decay_time_s * (1 + 1e-9)
         assert f["supply_j"]["max"] <= p.supply_j * (1 + 1e-9)
         assert f["end_current_a"]["min"] >= p.boost.threshold_a * (1 - 1e-9)
+
+
+@settings(max_examples=60, deadline=None)
+@given(i0=st.floats(0.05, 5.0), v_c=st.floats(5.0, 80.0), c=st.floats(1e-5, 5e-3), r=st.floats(0.5, 50.0),
+       ell=st.floats(1e-3, 0.2), v_d=st.floats(0.3, 1.2))
+def test_the_return_takes_no_more_than_the_field_and_its_current_only_falls(i0, v_c, c, r, ell, v_d):
+    """Hypothesis over the return into the boost capacitor: the capacitor's gain plus the
+    three diodes' share never exceeds the field's 1/2 L i0^2 (the first law; the loop's
+    resistance takes the rest), and the current falls monotonically to its zero."""
+    back = boost_return(i0, v_c, c, r, 0.1, ell, v_d)
+    field = 0.5 * ell * i0**2
+    assert 0.0 < float(back.returned) and float(back.returned) + 3 * v_d * float(back.charge) <= field * (1 + 1e-9)
+    t = np.linspace(0.0, float(back.zero_time), 201)
+    i, _ = boost_return_trace(t, i0, v_c, c, r, 0.1, ell, v_d)
+    assert np.all(np.diff(i) <= 1e-12 * i0) and abs(i[-1]) <= 1e-9 * i0
