@@ -1481,9 +1481,11 @@ def _read_boost(s: "_Section") -> tuple:
 def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature: Armature | None,
                            latch: "Latch | None") -> tuple[str, str] | None:
     """``(key, why)`` where a latching coil's pulses from the boost are not modelled, else
-    ``None``: they are (:mod:`coildrive.design.latch_boost`) for a linear coil without an
-    eddy term, a reset winding on a second low- or high-side switch, no ``[armature]``, a
-    stiff main supply and no settle time after the reset pulse."""
+    ``None``: they are (:mod:`coildrive.design.latch_boost`) for a linear coil or a
+    flux-linkage curve (the set winding's; an eddy term on either winding too: the boosted
+    peak's runs of :mod:`coildrive.model.flux_boost`), a reset winding on a second low- or
+    high-side switch, no ``[armature]``, a stiff main supply and no settle time after the
+    reset pulse."""
     if armature is not None:
         return "armature", "a latching coil with a moving armature (its seat run from the boost)"
     if supply.droops:
@@ -1492,12 +1494,6 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
     if switch.topology == "full_bridge":
         return "hold.mode", ("a latching coil on a full bridge (its reset polarity drives leg B, which the "
                              "boost switch does not feed: a reset winding on a low- or high-side board only)")
-    if coil.flux_current or (latch is not None and latch.reset_coil is not None
-                             and latch.reset_coil.flux_current):
-        return "coil.flux_current", "a latching coil's flux-linkage curve (its pulses from the boost: a linear coil)"
-    if coil.eddy_resistance or (latch is not None and latch.reset_coil is not None
-                                and latch.reset_coil.eddy_resistance):
-        return "coil.eddy_resistance", "a latching coil's eddy-current term (its pulses from the boost: a linear coil)"
     if latch is not None and latch.reset_settle_time > 0:
         return "reset.settle_time", ("a reset settle time (each pulse from the boost ends at its current "
                                      "threshold, not at a time after it)")
@@ -1532,7 +1528,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     an on/off cycle (the peak's heat is the run's copper integral, with an eddy term plus its core loss
     bounded by the first law: :func:`coildrive.design.boost_armature.peak_heat`).
     A latching coil's set and reset pulses from the boost, each ending at its own threshold
-    (:mod:`coildrive.design.latch_boost`): what :func:`_boosted_latch_refusal` allows.
+    (:mod:`coildrive.design.latch_boost`; a linear coil or a curve, an eddy term too): what
+    :func:`_boosted_latch_refusal` allows.
     Anything else is refused in one line."""
     if not supply.boosted:
         return
@@ -1588,7 +1585,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "eddy term too, no clamp), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
                          "with [armature]: no mixed decay, no restitution with an eddy term; a "
-                         "latching coil: a linear coil and its reset winding, a stiff main supply, no [armature]")
+                         "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, a stiff "
+                         "main supply, no [armature]")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,

@@ -23,10 +23,10 @@ zero, the coil's temperature (:mod:`coildrive.model.latch`: the larger pulse's c
 heat every interval, from the hottest ambient, up to ``thermal.max_coil_temp``), and the
 capacitor's recharge to the bus the pulses were designed from.
 
-From the boost (``[supply] boost``; a linear coil's two windings on a stiff main supply):
-each pulse ends at its own current threshold with a time-out, its energy is drawn from
-the boost, and the boost's recharge enters the interval
-(:mod:`coildrive.design.latch_boost`).
+From the boost (``[supply] boost``; two windings on a stiff main supply, the set winding
+linear or on a curve, an eddy term on either): each pulse ends at its own current
+threshold with a time-out, its energy is drawn from the boost, and the boost's recharge
+enters the interval (:mod:`coildrive.design.latch_boost`).
 
 A flux-linkage curve (the set winding's, or the bridge's one coil's) takes every segment
 on the curve (:mod:`coildrive.model.flux`; on a drooping bus :mod:`coildrive.model.flux_bus`),
@@ -113,8 +113,8 @@ class PulseResult:
     resistance, on, freewheeling and while the flux dies through it alone; 0 without one);
     ``supply_j`` is the sum of the other five. From the boost (``[supply] boost``,
     :mod:`coildrive.design.latch_boost`): ``supply_j`` is the boost's, ``boost_j`` the boost
-    path's ``R_b`` (``supply_j`` the sum of copper, switch and sense, boost path and
-    freewheel), ``boost`` the pulse's threshold, time-out, droop, energy and recharge (the
+    path's ``R_b`` (``supply_j`` the sum of copper, switch and sense, boost path,
+    freewheel and eddy), ``boost`` the pulse's threshold, time-out, droop, energy and recharge (the
     boosted peak's :class:`~coildrive.design.result.BoostResult`), ``ticks`` the time-out
     and ``shortest_s`` the fastest time to the threshold. ``stored_j``: the energy in the coil's field when the pulse ends (there), which
     its decay takes out again: ``int_0^I i dpsi`` on a flux-linkage curve (``I psi(I) -
@@ -582,6 +582,7 @@ def _boosted(wd: Drive, pts: Points, name: str, winding: str, switches: str, cur
         governed_by="current threshold" if reached else "", end_current_a=b.threshold_a if reached else 0.0,
         not_reached=not_reached, supply_j=e["supply_j"], copper_j=e["copper_j"],
         switch_sense_j=e["switch_sense_j"], freewheel_j=e["freewheel_j"], returned_j=0.0, boost_j=e["boost_j"],
+        eddy_j=e["eddy_j"],
         stored_j=e["stored_j"], energy_corner=pts.label(e["k"]) + (", the boost at its highest" if e["high"]
                                                                    else ", the boost at its lowest"),
         decay_time_s=e["decay_time_s"], peak_switch_voltage_v=b.switch_voltage_v,

@@ -22,11 +22,21 @@ Energy per pulse (the corner and side where the boost gives the most): from zero
 back to zero the capacitor's ``1/2 C (V_b^2 - v_C^2)`` is exactly what the loop takes::
 
     E_boost = R_coil (S_on + S_d) + R_switch S_on + R_sense (S_on [+ S_d]) + R_b S_on + E_freewheel
+              [+ E_eddy]
 
 (``S``: ``int i^2 dt`` over the on-time, in closed form by
 :func:`coildrive.model.boost.square_integral`, and over the decay; ``R_b`` the boost
 path's own resistance, ``boost_j``). The boost's recharge of the larger pulse's energy at
 ``boost_power`` enters the shortest interval between pulses.
+
+A flux-linkage curve (the set winding's) or an eddy-current term (either winding's) takes
+each pulse on the monostable boosted peak's runs (:mod:`coildrive.model.flux_boost`,
+``model.of``): the threshold on the terminal current the sense reads, raised by the eddy
+share's bound ``V_b,max / R_e`` (:func:`coildrive.design.boost.threshold`), the pulse's
+current on the magnetising current; ``S_on`` the terminal current's, ``E_eddy`` the
+on-time's by the boost's balance (:func:`coildrive.model.boost.eddy_loss`) plus the
+release's (:func:`coildrive.model.eddy.release_eddy_energy`: the conduction, then the
+flux's tail through ``R_e``); the field's ``int i dpsi`` at the turn-off.
 """
 
 from __future__ import annotations
@@ -38,6 +48,7 @@ import numpy as np
 from ..config import Drive
 from ..model import boost as model
 from ..model.circuit import freewheel_element_energy, loop
+from ..model.eddy import EddyCoil, release_eddy_energy, stored_energy
 from ..model.rl import decay_integrals, decay_time
 from . import boost
 from .result import BoostResult, Check
@@ -62,9 +73,12 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult) -> dict:
     """One pulse's energies at the corner and side where the boost gives the most (the
     module docstring's balance; J): ``supply_j`` (from the boost), ``copper_j``,
     ``switch_sense_j``, ``boost_j`` (the boost path's ``R_b``), ``freewheel_j``,
-    ``stored_j`` (``1/2 L I^2`` at the turn-off), and ``k`` the point, ``high`` the side;
-    ``decay_time_s`` the longest time to zero after a pulse and ``end_current_a`` the
-    highest current it turns off (over both sides)."""
+    ``eddy_j`` (an eddy term's resistance: on, freewheeling and the flux's tail; 0 without
+    one), ``stored_j`` (the field's ``int i dpsi`` at the turn-off: ``1/2 L I^2`` for a
+    linear coil, the magnetising branch's with an eddy term), and ``k`` the point,
+    ``high`` the side; ``decay_time_s`` the longest time to zero (of the terminal current)
+    after a pulse and ``end_current_a`` the highest (terminal) current it turns off (over
+    both sides)."""
     trip = b.trip_max_a
     best, t_zero_max, i_max = None, 0.0, 0.0
     for high in (False, True):
@@ -72,25 +86,31 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult) -> dict:
         m = model.of(bb)
         t = m.threshold_time(trip, bb, sensed=True) + late(wd)
         t = np.where(np.isfinite(t), t, 0.0)   # never reached: no pulse there (the check fails)
-        i_top = m.state(t, bb)[0]
+        i_top, v_top = m.state(t, bb)   # (with an eddy term the magnetising current)
         s_on = m.square_integral(t, bb)
         drawn = m.energy_drawn(t, bb)
-        t_zero = decay_time(0.0, i_top, rel.r_off, rel.v_off, lp.inductance)
-        q_d, s_d = decay_integrals(t_zero, i_top, rel.r_off, rel.v_off, lp.inductance)
+        ind = lp.inductance
+        t_zero = decay_time(0.0, i_top, rel.r_off, rel.v_off, ind)
+        q_d, s_d = decay_integrals(t_zero, i_top, rel.r_off, rel.v_off, ind)
         sense = wd.board.sense
         r_sense = sense.resistance * sense_factor
+        eddy = isinstance(ind, EddyCoil)
         parts = {"supply_j": drawn, "copper_j": lp.r_coil * (s_on + s_d),
                  "switch_sense_j": wd.switch.on_resistance * s_on
                  + r_sense * (s_on + (s_d if sense.position == "coil" else 0.0)),
                  "boost_j": wd.supply.boost_resistance * s_on,
                  "freewheel_j": freewheel_element_energy(wd, rel, q_d, s_d),
-                 "stored_j": 0.5 * lp.inductance * i_top**2}
+                 # the on-time's share by the boost's balance, then the release's (the
+                 # conduction, then the flux's tail through R_e alone)
+                 "eddy_j": (m.eddy_loss(t, bb) + release_eddy_energy(i_top, rel.r_off, rel.v_off, ind)
+                            if eddy else 0.0 * drawn),
+                 "stored_j": stored_energy(ind.magnetising if eddy else ind, i_top)}
         k = int(np.argmax(drawn))
         if best is None or float(drawn[k]) > best["supply_j"]:
             best = {name: float(np.broadcast_to(v, np.shape(drawn))[k]) for name, v in parts.items()}
             best.update(k=k, high=high)
         t_zero_max = max(t_zero_max, float(np.max(t_zero)))
-        i_max = max(i_max, float(np.max(i_top)))
+        i_max = max(i_max, float(np.max(m.terminal(i_top, v_top, bb))))
     return {**best, "decay_time_s": t_zero_max, "end_current_a": i_max}
 
 
@@ -116,8 +136,16 @@ def firmware_time(wd: Drive, b: BoostResult, supply: float, coil_temp: float, r_
     t, m, bb = _threshold_tick(wd, b, supply, coil_temp, r_factor, l_factor)
     if b.timeout_s is None:
         top = float(m.peak_time(bb))
-        return min(t, top if np.isfinite(top) else 5.0 * float(bb.l / bb.r))
+        return min(t, top if np.isfinite(top) else 5.0 * _time_constant(bb))
     return min(t, b.timeout_s)
+
+
+def _time_constant(bb) -> float:
+    """``L/R`` (s) of one point's boost loop: a flux-linkage curve's at zero current (its
+    largest incremental inductance on a saturating curve)."""
+    if isinstance(bb, model.flux_boost.FluxBoost):
+        return float(np.ravel(bb.coil.scale)[0] * bb.coil.curve.incremental(0.0) / np.ravel(bb.r)[0])
+    return float(np.ravel(bb.l / bb.r)[0])
 
 
 def firmware_times_out(wd: Drive, b: BoostResult, supply: float, coil_temp: float, r_factor: float = 1.0,
@@ -164,7 +192,7 @@ def sample_figures(wd: Drive, lp, rel, sense_factor, b: BoostResult, current: fl
     t_trip = m.threshold_time(trip, bb, sensed=True)
     timeout = b.timeout_s or 0.0
     out = t_trip > timeout
-    end = np.where(out, m.state(np.minimum(t_trip, timeout), bb)[0], trip)
+    end = np.where(out, m.current(np.minimum(t_trip, timeout), bb, sensed=True), trip)
     t_long = np.minimum(t_trip + late(wd), timeout)
     i_top = m.state(t_long, bb)[0]
     return (m.threshold_time(current, bb), end, m.energy_drawn(t_long, bb),

@@ -23,7 +23,9 @@ freewheel path).
 
 From the boost (``[supply] boost``, two windings): each pulse's on-time is the boost
 capacitor's series RLC discharge into the winding (:mod:`coildrive.model.boost`, at its
-nominal charge and capacitance), the top of the coil the capacitor less ``R_b i``; after
+nominal charge and capacitance; a flux-linkage curve's or an eddy term's by
+:mod:`coildrive.model.flux_boost`, the current then the terminal one), the top of the
+coil the capacitor less ``R_b i``; after
 the pulse the winding's freewheel path returns its current to the top, which the main
 supply holds (the boost switch is off). A ``boost_v`` column is the capacitor through
 both pulses, recharged at ``boost_power`` after each.
@@ -96,10 +98,11 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
     gap_on = None
     if drive.armature is not None:   # the set pulse moves the armature (a drooping bus: a state of its run)
         t_on, i_on, gap_on, bus = _seating(drive, lp, l_factor, t_pulse, points, supply, coil_temp)
-    elif drive.supply.boosted:   # from the boost capacitor (config: a linear coil, no eddy term)
+    elif drive.supply.boosted:   # from the boost capacitor (a curve's, an eddy term's: model.flux_boost)
         b = boost_of(drive, r_on, ind)
-        i_on, v_c = boost_model.state(t_on, b)
-        bus = v_c - drive.supply.boost_resistance * i_on   # the top of the coil
+        m = boost_model.of(b)
+        i_on, v_c = m.state(t_on, b)
+        bus = v_c - drive.supply.boost_resistance * m.terminal(i_on, v_c, b)   # the top of the coil
     elif drive.supply.droops:
         s = drive.supply
         mag = ind.magnetising if r_e is not None else ind
@@ -183,11 +186,14 @@ def fast_trace(drive: Drive, rel, i0: float, v0: float, t):
     return flux_bus_decay.trace(t, *_fast_args(drive, rel, i0, v0), sink=drive.supply.sink)
 
 
-def boost_of(drive: Drive, r_on: float, inductance: float) -> boost_model.Boost:
+def boost_of(drive: Drive, r_on: float, inductance):
     """The boost at its nominal charge and capacitance feeding the winding's on-loop
-    ``r_on`` ohm (the boost path's own resistance added) and ``inductance`` H."""
+    ``r_on`` ohm (the boost path's own resistance added) and one point's coil
+    ``inductance`` (H, a :class:`~coildrive.model.flux.FluxCoil` or an
+    :class:`~coildrive.model.eddy.EddyCoil`: :func:`coildrive.model.boost.one_point`)."""
     s = drive.supply
-    return boost_model.boost(s.boost, s.boost_capacitance, r_on + s.boost_resistance, inductance)
+    return boost_model.boost(s.boost, s.boost_capacitance, r_on + s.boost_resistance,
+                             *boost_model.one_point(inductance))
 
 
 def _boost_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float, r_factor: float,
@@ -199,7 +205,7 @@ def _boost_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp: fl
     out = []
     for wd, start, length, part in ((drive, 0.0, set_time, time < gap), (reset_drive, gap, reset_time, time >= gap)):
         lp = loop(wd, supply, coil_temp, r_factor, l_factor)
-        b = boost_of(wd, float(lp.r_on), float(lp.inductance))
+        b = boost_of(wd, float(lp.r_on), lp.inductance)
         out.append(np.where(part, boost_model.voltage_trace(time - start, length, b, wd.supply.boost_power), 0.0))
     return out[0] + out[1]
 
