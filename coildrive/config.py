@@ -1484,13 +1484,11 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
     ``None``: they are (:mod:`coildrive.design.latch_boost`) for a linear coil or a
     flux-linkage curve (the set winding's; an eddy term on either winding too: the boosted
     peak's runs of :mod:`coildrive.model.flux_boost`), a reset winding on a second low- or
-    high-side switch, no ``[armature]``, a stiff main supply and no settle time after the
-    reset pulse."""
+    high-side switch, no ``[armature]``, a stiff or a drooping main supply (the boost
+    converter's draw on it: :func:`coildrive.design.latch_boost.main_bus`) and no settle
+    time after the reset pulse."""
     if armature is not None:
         return "armature", "a latching coil with a moving armature (its seat run from the boost)"
-    if supply.droops:
-        return "supply.source_resistance", ("a latching coil on a drooping main supply (its pulses from "
-                                            "the boost: a stiff main supply only)")
     if switch.topology == "full_bridge":
         return "hold.mode", ("a latching coil on a full bridge (its reset polarity drives leg B, which the "
                              "boost switch does not feed: a reset winding on a low- or high-side board only)")
@@ -1586,7 +1584,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
                          "with [armature]: no mixed decay, no restitution with an eddy term; a "
                          "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, a stiff "
-                         "main supply, no [armature]")
+                         "or a drooping main supply, no [armature], no reset settle_time")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,

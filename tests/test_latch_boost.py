@@ -47,7 +47,6 @@ from coildrive.model.circuit import loop
 from coildrive.model.rl import decay_time
 
 VALVE = EXAMPLES / "latching" / "shutoff-valve-boost-reset-winding-12v.toml"
-RELAY = EXAMPLES / "latching" / "bistable-relay-reset-winding-24v.toml"
 BRIDGE = EXAMPLES / "latching" / "irrigation-valve-bridge-12v.toml"
 BOARDS_MANIFOLD = BOARDS / "manifold-m32-6ch.toml"
 
@@ -311,7 +310,6 @@ BOOST = ("[supply]\n", "[supply]\nboost = \"40 V\"\nboost_capacitance = \"220 uF
 
 @pytest.mark.parametrize("path,edits,args,key", [
     (BRIDGE, [BOOST], [], "hold.mode"),
-    (RELAY, [BOOST], [], "supply.source_resistance"),
     (VALVE, [("current = \"0.5 A\"\n", "current = \"0.5 A\"\nsettle_time = \"5 ms\"\n")], [], "reset.settle_time"),
     (VALVE, [("[freewheel]", "[armature]\ninductance_open = \"20 mH\"\ninductance_closed = \"30 mH\"\n"
               "stroke = \"1 mm\"\nmass = \"5 g\"\nspring_preload = \"2 N\"\nspring_rate = \"500 N/m\"\n\n"

@@ -231,6 +231,9 @@ class LatchResult:
     boost_interval_s: float = 0.0
     #: what the set coil's datasheet keys gave (:func:`coildrive.design.datasheet.derived_values`)
     derived: list = dataclasses.field(default_factory=list)
+    #: pulses from the boost on a drooping main supply: the main bus under the boost
+    #: converter's recharges (:class:`coildrive.design.latch_boost.MainBus`; else ``None``)
+    main_bus: latch_boost.MainBus | None = None
 
 
 @dataclass(frozen=True)
@@ -313,7 +316,8 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     switches = (("Q3 + Q2 (the other polarity)" if reset else "Q1 + Q4") if bridge else
                 ("the reset winding's switch" if reset else "the set winding's switch"))
     droops = drive.supply.droops
-    scale = 1.0 - lt.recharge_tolerance if droops else 1.0
+    # (pulses from the boost do not draw on the main bus: they start from its source's range)
+    scale = 1.0 - lt.recharge_tolerance if droops and not drive.supply.boosted else 1.0
     pts = _points(drive, coil, scale)
     if drive.supply.boosted:
         return _boosted(wd, pts, name, winding, switches, current, margin, cm)
@@ -819,7 +823,8 @@ def design_latch(drive: Drive) -> LatchDesign:
     else:
         t_th = 0.0
     t_decay = max(p.time_s + p.decay_time_s for p in pulses)
-    t_rc = max(p.time_s + p.recharge_time_s for p in pulses)
+    # (pulses from the boost leave the main bus's capacitor to the converter: main_bus)
+    t_rc = 0.0 if drive.supply.boosted else max(p.time_s + p.recharge_time_s for p in pulses)
     t_open = max(p.open_time_s or 0.0 for p in pulses)
     t_boost = max((p.boost.min_interval_s or 0.0) if p.boost is not None else 0.0 for p in pulses)
     parts = {"the pulse and its decay to zero": t_decay, "the coil's temperature": t_th,
@@ -845,11 +850,13 @@ def design_latch(drive: Drive) -> LatchDesign:
     if drive.duty is not None:
         cycle, more = _cycle(drive, pulses, interval)
         checks += more
+    bus, more = latch_boost.main_bus(drive, pulses, interval)
+    checks += more
     result = LatchResult(
         topology=drive.switch.topology, pulses=pulses, interval_s=interval, interval_ticks=ticks, cycle=cycle,
         governed_by=governed, decay_interval_s=t_decay, thermal_interval_s=t_th,
         recharge_interval_s=t_rc if drive.supply.droops else 0.0, armature_interval_s=t_open,
-        boost_interval_s=t_boost,
+        boost_interval_s=t_boost, main_bus=bus,
         derived=derived_values(drive),
         pulse_heat_j=heat,
         coil_rise_per_pulse_k=rise, hottest_coil_c=hottest, coil_limit_c=th.max_coil_temp,
@@ -918,7 +925,7 @@ def latch_waveforms(d: LatchDesign) -> dict:
     from ..model.latch_waveform import latch_actuation
 
     drive = d.drive
-    scale = 1.0 - drive.latch.recharge_tolerance if drive.supply.droops else 1.0
+    scale = 1.0 - drive.latch.recharge_tolerance if drive.supply.droops and not drive.supply.boosted else 1.0
     rt, lt = drive.coil.resistance_tolerance, drive.coil.inductance_tolerance
     points = {f"nominal: {drive.supply.nominal:g} V, coil {drive.ambient.max:g} degC":
               (drive.supply.nominal, drive.ambient.max, 1.0, 1.0),

@@ -29,6 +29,12 @@ back to zero the capacitor's ``1/2 C (V_b^2 - v_C^2)`` is exactly what the loop 
 path's own resistance, ``boost_j``). The boost's recharge of the larger pulse's energy at
 ``boost_power`` enters the shortest interval between pulses.
 
+On a drooping main supply (``supply.source_resistance`` with ``capacitance``) the pulses
+still run from the boost alone (the main supply's diode blocks: ``*_boost_droop``) and
+each winding's freewheel path returns nothing to the main bus; what loads it is the boost
+converter, drawing ``boost_power / boost_efficiency`` while it recharges after each pulse
+(:class:`MainBus`, :func:`main_bus`, physics :mod:`coildrive.model.converter_bus`).
+
 A flux-linkage curve (the set winding's) or an eddy-current term (either winding's) takes
 each pulse on the monostable boosted peak's runs (:mod:`coildrive.model.flux_boost`,
 ``model.of``): the threshold on the terminal current the sense reads, raised by the eddy
@@ -42,11 +48,13 @@ flux's tail through ``R_e``); the field's ``int i dpsi`` at the turn-off.
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 
 from ..config import Drive
 from ..model import boost as model
+from ..model import converter_bus
 from ..model.circuit import freewheel_element_energy, loop
 from ..model.eddy import EddyCoil, release_eddy_energy, stored_energy
 from ..model.rl import decay_integrals, decay_time
@@ -198,3 +206,70 @@ def sample_figures(wd: Drive, lp, rel, sense_factor, b: BoostResult, current: fl
     return (m.threshold_time(current, bb), end, m.energy_drawn(t_long, bb),
             decay_time(0.0, i_top, rel.r_off, rel.v_off, lp.inductance), out)
 
+
+
+@dataclass(frozen=True)
+class MainBus:
+    """The drooping main bus behind the pulses from the boost (``design --json``
+    ``latch.main_bus``; ``None`` on a stiff main supply). The boost converter draws
+    ``converter_draw_w`` W (``boost_power / boost_efficiency``) from it for ``draw_time_s``
+    s after every pulse (the larger pulse's energy from the boost at ``boost_power``), the
+    pulses coming every ``period_s`` s (the shortest interval: the fastest the firmware
+    may fire them); the pulses run from the boost and the freewheel paths return nothing
+    to it. ``lowest_bus_v``: the lowest bus, the periodic orbit's at the end of a draw
+    (from a full bus it only falls to it), at ``lowest_bus_corner`` (the source there,
+    ``source_v``), ``droop_v`` below that source; ``floor_v`` the bus a steady draw settles
+    at there (V_1 of :mod:`coildrive.model.converter_bus`). ``None`` where the source
+    behind ``R_s`` cannot carry the draw at all: it delivers at most ``source_limit_w`` =
+    ``V_s^2 / (4 R_s)`` at the lowest source. Units V, ohm, F, W, s."""
+
+    source_resistance_ohm: float
+    capacitance_f: float
+    converter_draw_w: float
+    draw_time_s: float
+    period_s: float
+    source_v: float
+    lowest_bus_v: float | None
+    lowest_bus_corner: str
+    droop_v: float | None
+    floor_v: float | None
+    source_limit_w: float
+
+
+def main_bus(drive: Drive, pulses: list, interval: float) -> tuple[MainBus | None, list[Check]]:
+    """The drooping main bus under the boost converter's recharges (:class:`MainBus`) at both
+    ends of the source (``supply.min``, ``supply.max``), pulses every ``interval`` s, and
+    its check ``boost_main_bus`` (the source carries the converter's draw); ``(None, [])``
+    on a stiff main supply."""
+    s = drive.supply
+    if not (s.boosted and s.droops):
+        return None, []
+    p_in = s.converter_draw
+    energy = max((p.boost.energy_j for p in pulses if p.boost is not None), default=0.0)
+    t_draw = energy / s.boost_power if s.boost_power > 0 else 0.0
+    v_s = np.array([s.min, s.max])
+    period = interval if math.isfinite(interval) else math.inf
+    low = converter_bus.orbit_low(v_s, s.source_resistance, s.capacitance, p_in, t_draw, max(period, t_draw))
+    floor = converter_bus.roots(v_s, s.source_resistance, p_in)[0]
+    carried = bool(np.all(np.isfinite(low)))
+    k = int(np.argmin(low)) if carried else 0
+    limit = s.min**2 / (4.0 * s.source_resistance)
+    bus = MainBus(
+        source_resistance_ohm=s.source_resistance, capacitance_f=s.capacitance, converter_draw_w=p_in,
+        draw_time_s=t_draw, period_s=period, source_v=float(v_s[k]),
+        lowest_bus_v=float(low[k]) if carried else None, lowest_bus_corner=f"source {v_s[k]:.4g} V",
+        droop_v=float(v_s[k] - low[k]) if carried else None, floor_v=float(floor[k]) if carried else None,
+        source_limit_w=limit)
+    if not carried:
+        return bus, [Check("boost_main_bus", False,
+                           f"the source at {s.min:.4g} V behind {s.source_resistance:.4g} ohm delivers at most "
+                           f"{limit:.4g} W, less than the boost converter's {p_in:.4g} W: the main bus collapses "
+                           "while the boost recharges -- a lower supply.source_resistance or a smaller "
+                           "supply.boost_power")]
+    every = f"every {period * 1e3:.4g} ms" if math.isfinite(period) else "once"
+    return bus, [Check("boost_main_bus", True,
+                       f"the boost converter draws {p_in:.4g} W from the main bus for {t_draw * 1e3:.4g} ms after "
+                       f"each pulse (pulses {every}): the bus falls {bus.droop_v:.4g} V to "
+                       f"{bus.lowest_bus_v:.4g} V at its {bus.lowest_bus_corner} (a steady draw settles at "
+                       f"{bus.floor_v:.4g} V); the pulses run from the boost and their freewheel paths return "
+                       "nothing to it")]

@@ -28,7 +28,10 @@ nominal charge and capacitance; a flux-linkage curve's or an eddy term's by
 coil the capacitor less ``R_b i``; after
 the pulse the winding's freewheel path returns its current to the top, which the main
 supply holds (the boost switch is off). A ``boost_v`` column is the capacitor through
-both pulses, recharged at ``boost_power`` after each.
+both pulses, recharged at ``boost_power`` after each. On a drooping main supply a
+``main_bus_v`` column is the main bus (:mod:`coildrive.model.converter_bus`: the
+converter draws ``boost_power / boost_efficiency`` from it while it recharges), which
+each switch's node follows while it is off.
 
 Units: s, A, V.
 """
@@ -210,6 +213,28 @@ def _boost_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp: fl
     return out[0] + out[1]
 
 
+def _main_bus_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float, r_factor: float,
+                     l_factor: float, time, set_time: float, reset_time: float, gap: float) -> np.ndarray:
+    """The drooping main bus (V) through both pulses from a full bus at ``supply`` V: after
+    each pulse the boost converter draws ``boost_power / boost_efficiency`` from it while
+    it puts the pulse's ``1/2 C (V_b^2 - v_end^2)`` back at ``boost_power`` (the
+    ``boost_v`` column's recharge; each draw ends by the next pulse's start), the bus
+    resting in between (:func:`coildrive.model.converter_bus.trace`)."""
+    from . import converter_bus
+
+    s = drive.supply
+    starts, lengths = [], []
+    for wd, start, length, nxt in ((drive, 0.0, set_time, gap), (reset_drive, gap, reset_time, np.inf)):
+        lp = loop(wd, supply, coil_temp, r_factor, l_factor)
+        b = boost_of(wd, float(lp.r_on), lp.inductance)
+        v_end = float(boost_model.of(b).state(length, b)[1])
+        draw = 0.5 * float(b.c) * (s.boost**2 - v_end**2) / s.boost_power if s.boost_power > 0 else 0.0
+        starts.append(start + length)
+        lengths.append(min(draw, nxt - start - length))
+    return converter_bus.trace(time, starts, lengths, supply, s.source_resistance, s.capacitance,
+                               s.converter_draw)
+
+
 def _seating(drive: Drive, lp, l_factor: float, t_pulse: float, points: int, supply: float,
              coil_temp: float):
     """The set pulse with a moving armature (:func:`coildrive.model.armature_sim.simulate`
@@ -269,6 +294,15 @@ def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: 
     if drive.supply.boosted:
         cols["boost_v"] = _boost_column(drive, reset_drive, supply, coil_temp, r_factor, l_factor, time,
                                         set_time, reset_time, gap)
+    if drive.supply.boosted and drive.supply.droops and not full_bridge(drive):
+        main = _main_bus_column(drive, reset_drive, supply, coil_temp, r_factor, l_factor, time, set_time,
+                                reset_time, gap)
+        # each switch off, its node follows the top, which the main bus holds
+        off_s = np.concatenate([1.0 - ons, np.ones(n_i + tr.size)])
+        off_r = np.concatenate([np.ones(n_s + n_i), 1.0 - onr])
+        cols["switch_voltage_v"] = cols["switch_voltage_v"] + off_s * (main - supply)
+        cols["reset_switch_voltage_v"] = cols["reset_switch_voltage_v"] + off_r * (main - supply)
+        cols["main_bus_v"] = main
     gap_all = (None if gap_s is None else
                np.concatenate([gap_s, np.zeros(n_i), np.full(tr.size, np.nan)]))
     return LatchWaveform(cols, events, gap_all)
