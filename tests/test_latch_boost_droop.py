@@ -95,6 +95,10 @@ def test_lowest_main_bus_against_solve_ivp_and_by_hand(droop):
     assert np.all(np.diff(low) <= 1e-12), "the orbit is reached from above"
     assert m.lowest_bus_v == pytest.approx(low[-1], rel=1e-6)
     assert m.floor_v < m.lowest_bus_v < 9.0 and m.droop_v == pytest.approx(9.0 - m.lowest_bus_v)
+    # no safe interval (period inf): one draw from a full bus, solve_ivp's first draw within 1e-6
+    from coildrive.model import converter_bus
+    once = converter_bus.orbit_low(np.array([9.0]), 2.0, 1e-3, p_in, m.draw_time_s, math.inf)
+    assert float(once[0]) == pytest.approx(low[0], rel=1e-6) and low[0] > low[-1]
     assert s.source_resistance == 2.0
     check = next(c for c in d.checks if c.name == "boost_main_bus")
     assert check.ok and f"{m.lowest_bus_v:.4g} V" in check.detail

@@ -23,10 +23,11 @@ zero, the coil's temperature (:mod:`coildrive.model.latch`: the larger pulse's c
 heat every interval, from the hottest ambient, up to ``thermal.max_coil_temp``), and the
 capacitor's recharge to the bus the pulses were designed from.
 
-From the boost (``[supply] boost``; two windings on a stiff main supply, the set winding
-linear or on a curve, an eddy term on either): each pulse ends at its own current
-threshold with a time-out, its energy is drawn from the boost, and the boost's recharge
-enters the interval (:mod:`coildrive.design.latch_boost`).
+From the boost (``[supply] boost``; two windings, the set winding linear or on a curve,
+an eddy term on either): each pulse ends at its own current threshold with a time-out,
+its energy is drawn from the boost, and the boost's recharge enters the interval
+(:mod:`coildrive.design.latch_boost`); on a drooping main supply the pulses do not draw on
+it, the boost converter's recharges do (``latch.main_bus``).
 
 A flux-linkage curve (the set winding's, or the bridge's one coil's) takes every segment
 on the curve (:mod:`coildrive.model.flux`; on a drooping bus :mod:`coildrive.model.flux_bus`),

@@ -57,6 +57,7 @@ from ..model import boost as model
 from ..model import converter_bus
 from ..model.circuit import freewheel_element_energy, loop
 from ..model.eddy import EddyCoil, release_eddy_energy, stored_energy
+from ..model.flux_boost import FluxBoost
 from ..model.rl import decay_integrals, decay_time
 from . import boost
 from .result import BoostResult, Check
@@ -151,7 +152,7 @@ def firmware_time(wd: Drive, b: BoostResult, supply: float, coil_temp: float, r_
 def _time_constant(bb) -> float:
     """``L/R`` (s) of one point's boost loop: a flux-linkage curve's at zero current (its
     largest incremental inductance on a saturating curve)."""
-    if isinstance(bb, model.flux_boost.FluxBoost):
+    if isinstance(bb, FluxBoost):
         return float(np.ravel(bb.coil.scale)[0] * bb.coil.curve.incremental(0.0) / np.ravel(bb.r)[0])
     return float(np.ravel(bb.l / bb.r)[0])
 
@@ -207,7 +208,6 @@ def sample_figures(wd: Drive, lp, rel, sense_factor, b: BoostResult, current: fl
             decay_time(0.0, i_top, rel.r_off, rel.v_off, lp.inductance), out)
 
 
-
 @dataclass(frozen=True)
 class MainBus:
     """The drooping main bus behind the pulses from the boost (``design --json``
@@ -221,7 +221,8 @@ class MainBus:
     ``source_v``), ``droop_v`` below that source; ``floor_v`` the bus a steady draw settles
     at there (V_1 of :mod:`coildrive.model.converter_bus`). ``None`` where the source
     behind ``R_s`` cannot carry the draw at all: it delivers at most ``source_limit_w`` =
-    ``V_s^2 / (4 R_s)`` at the lowest source. Units V, ohm, F, W, s."""
+    ``V_s^2 / (4 R_s)`` at the lowest source. Units V, ohm, F, W, s (``period_s`` null in
+    the JSON where no interval is safe: then one draw from a full bus)."""
 
     source_resistance_ohm: float
     capacitance_f: float
@@ -248,7 +249,7 @@ def main_bus(drive: Drive, pulses: list, interval: float) -> tuple[MainBus | Non
     energy = max((p.boost.energy_j for p in pulses if p.boost is not None), default=0.0)
     t_draw = energy / s.boost_power if s.boost_power > 0 else 0.0
     v_s = np.array([s.min, s.max])
-    period = interval if math.isfinite(interval) else math.inf
+    period = interval   # (inf where no interval is safe: one draw from a full bus)
     low = converter_bus.orbit_low(v_s, s.source_resistance, s.capacitance, p_in, t_draw, max(period, t_draw))
     floor = converter_bus.roots(v_s, s.source_resistance, p_in)[0]
     carried = bool(np.all(np.isfinite(low)))

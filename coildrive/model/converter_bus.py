@@ -87,8 +87,9 @@ def orbit_low(v_s, r_s, c, p, t_draw, period) -> np.ndarray:
     v1, _, carried = roots(v_s, r_s, p)
     rest = np.asarray(period, float) - np.asarray(t_draw, float)
     v_s = np.asarray(v_s, float)
-    lo = np.where(carried, v1, np.nan) + 0.0 * rest
-    hi = v_s + 0.0 * lo
+    shape = np.broadcast(v1, rest).shape     # (rest may be inf: a single draw from a full bus)
+    lo = np.broadcast_to(np.where(carried, v1, np.nan), shape) + 0.0
+    hi = np.broadcast_to(v_s, shape) + 0.0
     for _ in range(STEPS):
         mid = 0.5 * (lo + hi)
         up = resting(under_draw(mid, t_draw, v_s, r_s, c, p), rest, v_s, r_s, c) > mid
