@@ -75,8 +75,9 @@ def _side(drive, high: bool):
     return s.boost * (1 + sign * s.boost_tolerance), s.boost_capacitance * (1 + sign * s.boost_capacitance_tolerance)
 
 
-def _netlist(drive, v_main, r_coil, ind, v_b, c_b, trip, late, tend, step):
-    """The set pulse from the boost with ngspice's own threshold turn-off (module docstring)."""
+def _netlist(drive, v_main, r_coil, ind, v_b, c_b, trip, late, tend, step, r_eddy=None):
+    """The set pulse from the boost with ngspice's own threshold turn-off (module docstring);
+    ``r_eddy`` ohm: an eddy resistance across the winding's inductance (``eeddy`` its energy)."""
     sw, sense, v_d = drive.switch.on_resistance, drive.board.sense.resistance, drive.freewheel.diode_drop
     i_q = 1e-3                      # A into the timing capacitor: 0.5 V after `late` s
     c_q = 2.0 * i_q * late
@@ -89,6 +90,7 @@ def _netlist(drive, v_main, r_coil, ind, v_b, c_b, trip, late, tend, step):
         # its level (31 uA from the boost in the pulse: a 1e-6 share of its energy)
         "RTOP top main 1e6",
         "VM top n1 DC 0", f"RSENSE n1 n2 {sense!r}", f"RCOIL n2 n3 {r_coil!r}", f"LCOIL n3 drain {ind!r} IC=0",
+        *([] if r_eddy is None else [f"REDDY n3 drain {r_eddy!r}"]),
         "S1 drain 0 ref q SW1", knee("BD1", "0", "drain", v_d),
         "VFW drain dfw DC 0", knee("BFW", "dfw", "top", v_d),
         # the comparator and its tick: charging starts at the trip current and latches
@@ -109,6 +111,10 @@ def _netlist(drive, v_main, r_coil, ind, v_b, c_b, trip, late, tend, step):
         f"meas tran ecap INTEG pcap from=0 to={tend!r}",
         f"meas tran ecu INTEG pcu from=0 to={tend!r}",
         f"meas tran efw INTEG pfw from=0 to={tend!r}",
+        # (with an eddy term the terminal current steps at the turn-off: ion just before it)
+        *([] if r_eddy is None else [f"let ped = (v(n3) - v(drain)) * (v(n3) - v(drain)) / {r_eddy!r}",
+                                     f"meas tran eeddy INTEG ped from=0 to={tend!r}",
+                                     "meas tran ion FIND i(VM) WHEN v(q)=0.499 RISE=1"]),
         "meas tran tzero WHEN i(VM)=1e-6 FALL=1",
         "quit 0", ".endc", ".end"]) + "\n"
 

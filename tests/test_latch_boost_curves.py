@@ -20,8 +20,13 @@ alone (``CURVE``) and with 300 ohm across it and 200 ohm across the linear reset
   current at the worst corner, the longest pulse and the lowest boost on the slow side,
   and the energies (boost, copper, freewheel, eddy, field) and the time to zero at the
   energy corner, within 1e-5 (measured: 2.3e-7 at most);
+* ngspice (batch mode): tests/test_latch_boost.py's deck (ngspice's own threshold
+  turn-off) with the reset winding and a resistor across its inductance, at the reset
+  pulse's energy corner: times, currents, the boost's droop and the energies (boost,
+  copper, freewheel diode, eddy resistance) within 1 % (measured 4.2e-4 at most);
 * the model's device -> capture -> check (plumbing: the device runs the design's physics),
-  and a coil three times slower times out with the driver's FAULT.
+  and a coil three times slower times out with the driver's FAULT; the same through the
+  compiled reference driver in the loop.
 """
 
 from __future__ import annotations
@@ -192,6 +197,47 @@ def test_pulses_against_kirchhoff_in_solve_ivp(designs, case, name):
     # conservation of energy (common practice): the boost's energy is what the loop takes
     assert p.supply_j == pytest.approx(p.copper_j + p.switch_sense_j + p.boost_j + p.freewheel_j + p.eddy_j,
                                        rel=1e-6)
+
+
+@pytest.mark.ngspice
+def test_reset_pulse_with_its_eddy_term_against_ngspice(designs, tmp_path):
+    """ngspice (batch mode): tests/test_latch_boost.py's deck of a pulse from the boost with
+    ngspice's own threshold turn-off, the reset winding in it with a resistor across its
+    inductance, at the reset pulse's energy corner: the time to the trip current and the
+    turn-off, the terminal current just before it and the capacitor there, the capacitor's, the copper's,
+    the freewheel diode's and the eddy resistance's energy and the time to zero, each
+    within 1 %."""
+    from ngspice_run import run
+    from test_latch_boost import _netlist, _side
+    from coildrive.design.latch import winding_drive
+    from coildrive.model import boost as boost_model
+    from coildrive.model.circuit import loop
+    from coildrive.model.rl import decay_time
+
+    _, d = designs["eddy"]
+    p = d.latch.pulses[1]
+    wd = winding_drive(d.drive, True)
+    high = p.energy_corner.endswith("the boost at its highest")
+    point = _corner(p.energy_corner)
+    lp, rel = loop(wd, *point), loop(wd, *point, path="release")
+    v_b, c_b = _side(wd, high)
+    r_e, ind = R_E["reset"], float(lp.inductance.magnetising)
+    late = 1.0 / wd.board.tick.rate
+    bm = boost_model.boost(v_b, c_b, float(lp.r_on) + wd.supply.boost_resistance, ind, r_e)
+    t_trip = float(boost_model.threshold_time(p.boost.trip_max_a, bm, sensed=True))
+    i_m, v_off = (float(x) for x in boost_model.state(t_trip + late, bm))
+    # the terminal current just before the turn-off (q at 0.499 V: 0.002 of a tick before it)
+    i_on = float(boost_model.current(t_trip + 0.998 * late, bm, sensed=True))
+    t_zero = float(decay_time(0.0, i_m, rel.r_off, rel.v_off, lp.inductance))
+    step = t_trip / 4000
+    res = run(tmp_path, "latch-boost-eddy", _netlist(wd, point[0], float(lp.r_coil), ind, v_b, c_b, p.boost.trip_max_a,
+                                                     late, t_trip + late + 1.3 * t_zero + 10 * ind / r_e, step, r_e))
+    assert abs(res["tth"] - t_trip) <= 0.01 * t_trip + step, (res["tth"], t_trip)
+    assert abs(res["toff"] - t_trip - late) <= 0.01 * (t_trip + late) + step, res["toff"]
+    assert res["ion"] == pytest.approx(i_on, rel=0.01) and v_b - res["vcoff"] == pytest.approx(v_b - v_off, rel=0.01)
+    for key, ours in (("ecap", p.supply_j), ("ecu", p.copper_j), ("efw", p.freewheel_j), ("eeddy", p.eddy_j)):
+        assert res[key] == pytest.approx(ours, rel=0.01), (key, res[key], ours)
+    assert abs(res["tzero"] - res["toff"] - t_zero) <= 0.01 * t_zero + step, (res["tzero"] - res["toff"], t_zero)
 
 
 def test_cli_header_simulate_and_the_bench(designs, tmp_path):
