@@ -27,7 +27,7 @@ import numpy as np
 import pytest
 
 from conftest import run_cli
-from test_latch_boost import VALVE
+from test_latch_boost import VALVE, header_holds
 from test_latch_boost_curves import _write as curve_write
 
 from coildrive.config import load_drive
@@ -152,7 +152,8 @@ def test_simulate_check_and_a_curve_with_eddy_terms(droop, tmp_path):
     assert rep.ok, [(i.name, i.status, i.detail) for i in rep.items]
     # the set winding on a curve with eddy terms on both windings, on the drooping main bus
     curve = _drooping(tmp_path, curve=True)
-    r = run_cli("design", str(curve), "--json")
+    r = run_cli("design", str(curve), "--json", "--header", str(tmp_path / "c.h"), "--prefix", "SHUT")
     assert r.returncode == 0, r.stderr
     doc = json.loads(r.stdout)
     assert doc["latch"]["main_bus"]["lowest_bus_v"] < 9.0 and all(p["eddy_j"] > 0 for p in doc["latch"]["pulses"])
+    header_holds(tmp_path, "c.h", f'SHUT_LATCH_BOOSTED == 1U && SHUT_MIN_INTERVAL_TICKS == {doc["latch"]["interval_ticks"]}UL')
