@@ -1481,25 +1481,26 @@ def _read_boost(s: "_Section") -> tuple:
 def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature: Armature | None,
                            latch: "Latch | None") -> tuple[str, str] | None:
     """``(key, why)`` where a latching coil's pulses from the boost are not modelled, else
-    ``None``: they are (:mod:`coildrive.design.latch_boost`) for a linear coil without an
-    eddy term, a reset winding on a second low- or high-side switch or one coil on a full
-    bridge whose high-side rail the boost switch feeds (both polarities; a boost capacitor,
-    which takes each fast decay back through the boost switch's body diode), no
-    ``[armature]``, a stiff main supply and no settle time after the reset pulse."""
+    ``None``: they are (:mod:`coildrive.design.latch_boost`) for a linear coil or a
+    flux-linkage curve (the set winding's; an eddy term on either winding too: the boosted
+    peak's runs of :mod:`coildrive.model.flux_boost`), a reset winding on a second low- or
+    high-side switch, or a linear coil on a full bridge whose high-side rail the boost
+    switch feeds (both polarities; a boost capacitor, which takes each fast decay back
+    through the boost switch's body diode, on a stiff main supply), no ``[armature]``, a
+    stiff or a drooping main supply (the boost converter's draw on it:
+    :func:`coildrive.design.latch_boost.main_bus`) and no settle time after the reset pulse."""
     if armature is not None:
         return "armature", "a latching coil with a moving armature (its seat run from the boost)"
-    if supply.droops:
-        return "supply.source_resistance", ("a latching coil on a drooping main supply (its pulses from "
-                                            "the boost: a stiff main supply only)")
     if switch.topology == "full_bridge" and not supply.boost_capacitance > 0:
         return "supply.boost_capacitance", ("a latching coil on a full bridge from an ideal boost (each fast "
                                             "decay returns into the boost capacitor: give its capacitance)")
-    if coil.flux_current or (latch is not None and latch.reset_coil is not None
-                             and latch.reset_coil.flux_current):
-        return "coil.flux_current", "a latching coil's flux-linkage curve (its pulses from the boost: a linear coil)"
-    if coil.eddy_resistance or (latch is not None and latch.reset_coil is not None
-                                and latch.reset_coil.eddy_resistance):
-        return "coil.eddy_resistance", "a latching coil's eddy-current term (its pulses from the boost: a linear coil)"
+    if switch.topology == "full_bridge" and supply.droops:
+        return "supply.source_resistance", ("a latching coil on a full bridge from the boost on a drooping main "
+                                            "supply (a stiff main supply only)")
+    if switch.topology == "full_bridge" and (coil.flux_current or coil.eddy_resistance):
+        return (("coil.flux_current" if coil.flux_current else "coil.eddy_resistance"),
+                "a latching coil on a full bridge from the boost with a flux-linkage curve or an eddy-current "
+                "term (its fast decay back into the boost capacitor: a linear coil)")
     if latch is not None and latch.reset_settle_time > 0:
         return "reset.settle_time", ("a reset settle time (each pulse from the boost ends at its current "
                                      "threshold, not at a time after it)")
@@ -1534,8 +1535,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     an on/off cycle (the peak's heat is the run's copper integral, with an eddy term plus its core loss
     bounded by the first law: :func:`coildrive.design.boost_armature.peak_heat`).
     A latching coil's set and reset pulses from the boost, each ending at its own threshold
-    (:mod:`coildrive.design.latch_boost`; on a full bridge the boost feeds both legs' high
-    side and each fast decay returns into the boost capacitor): what
+    (:mod:`coildrive.design.latch_boost`; a linear coil or a curve, an eddy term too; on a
+    full bridge a linear coil, the boost feeding both legs' high side and each fast decay
+    returning into the boost capacitor): what
     :func:`_boosted_latch_refusal` allows.
     Anything else is refused in one line."""
     if not supply.boosted:
@@ -1592,8 +1594,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "eddy term too, no clamp), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
                          "with [armature]: no mixed decay, no restitution with an eddy term; a "
-                         "latching coil: a linear coil (its reset winding, or a full bridge with a boost capacitor), a "
-                         "stiff main supply, no [armature]")
+                         "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, or a "
+                         "linear coil on a full bridge with a boost capacitor on a stiff main supply; a stiff or a "
+                         "drooping main supply, no [armature], no reset settle_time")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,

@@ -143,9 +143,10 @@ def predict_pulse(design, name: str, supply: float, coil_temp: float, zero_curre
     if wd.supply.boosted:   # from the boost capacitor (model.boost): its voltage drives the end slope
         from ..model import boost as boost_model
         from ..model.latch_waveform import boost_of
-        b = boost_of(wd, float(lp.r_on[0]), float(lp.inductance[0]))
-        i_end, v_c = (float(x) for x in boost_model.state(length, b))
-        v_on = v_c - wd.supply.boost_resistance * i_end   # the top of the coil
+        b = boost_of(wd, float(lp.r_on[0]), lp.inductance)
+        m = boost_model.of(b)   # (a curve's or an eddy term's: model.flux_boost; i_end the magnetising current)
+        i_end, v_c = (float(x) for x in m.state(length, b))
+        v_on = v_c - wd.supply.boost_resistance * float(m.terminal(i_end, v_c, b))   # the top of the coil
     elif wd.armature is None:
         i_end = float(rise_current_at(wd, lp, length)[0])
     else:

@@ -23,11 +23,13 @@ zero, the coil's temperature (:mod:`coildrive.model.latch`: the larger pulse's c
 heat every interval, from the hottest ambient, up to ``thermal.max_coil_temp``), and the
 capacitor's recharge to the bus the pulses were designed from.
 
-From the boost (``[supply] boost``; a linear coil's two windings, or one coil on a full
-bridge whose high-side rail the boost switch feeds, on a stiff main supply): each pulse
-ends at its own current threshold with a time-out, its energy is drawn from the boost
-(on a bridge its fast decay returns into the boost capacitor), and the boost's recharge
-enters the interval (:mod:`coildrive.design.latch_boost`).
+From the boost (``[supply] boost``; two windings, the set winding linear or on a curve,
+an eddy term on either, or one linear coil on a full bridge whose high-side rail the boost
+switch feeds, on a stiff main supply): each pulse ends at its own current threshold with a
+time-out, its energy is drawn from the boost (on a bridge its fast decay returns into the
+boost capacitor), and the boost's recharge enters the interval
+(:mod:`coildrive.design.latch_boost`); on a drooping main supply the pulses do not draw on
+it, the boost converter's recharges do (``latch.main_bus``).
 
 A flux-linkage curve (the set winding's, or the bridge's one coil's) takes every segment
 on the curve (:mod:`coildrive.model.flux`; on a drooping bus :mod:`coildrive.model.flux_bus`),
@@ -115,8 +117,8 @@ class PulseResult:
     resistance, on, freewheeling and while the flux dies through it alone; 0 without one);
     ``supply_j`` is the sum of the other five. From the boost (``[supply] boost``,
     :mod:`coildrive.design.latch_boost`): ``supply_j`` is the boost's, ``boost_j`` the boost
-    path's ``R_b`` (``supply_j`` the sum of copper, switch and sense, boost path and
-    freewheel, and on a bridge ``returned_j``), ``boost`` the pulse's threshold, time-out, droop, energy and recharge (the
+    path's ``R_b`` (``supply_j`` the sum of copper, switch and sense, boost path,
+    freewheel and eddy, and on a bridge ``returned_j``), ``boost`` the pulse's threshold, time-out, droop, energy and recharge (the
     boosted peak's :class:`~coildrive.design.result.BoostResult`), ``ticks`` the time-out
     and ``shortest_s`` the fastest time to the threshold. ``stored_j``: the energy in the coil's field when the pulse ends (there), which
     its decay takes out again: ``int_0^I i dpsi`` on a flux-linkage curve (``I psi(I) -
@@ -233,6 +235,9 @@ class LatchResult:
     boost_interval_s: float = 0.0
     #: what the set coil's datasheet keys gave (:func:`coildrive.design.datasheet.derived_values`)
     derived: list = dataclasses.field(default_factory=list)
+    #: pulses from the boost on a drooping main supply: the main bus under the boost
+    #: converter's recharges (:class:`coildrive.design.latch_boost.MainBus`; else ``None``)
+    main_bus: latch_boost.MainBus | None = None
 
 
 @dataclass(frozen=True)
@@ -315,7 +320,8 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     switches = (("Q3 + Q2 (the other polarity)" if reset else "Q1 + Q4") if bridge else
                 ("the reset winding's switch" if reset else "the set winding's switch"))
     droops = drive.supply.droops
-    scale = 1.0 - lt.recharge_tolerance if droops else 1.0
+    # (pulses from the boost do not draw on the main bus: they start from its source's range)
+    scale = 1.0 - lt.recharge_tolerance if droops and not drive.supply.boosted else 1.0
     pts = _points(drive, coil, scale)
     if drive.supply.boosted:
         return _boosted(wd, pts, name, winding, switches, current, margin, cm)
@@ -586,7 +592,7 @@ def _boosted(wd: Drive, pts: Points, name: str, winding: str, switches: str, cur
         governed_by="current threshold" if reached else "", end_current_a=b.threshold_a if reached else 0.0,
         not_reached=not_reached, supply_j=e["supply_j"], copper_j=e["copper_j"],
         switch_sense_j=e["switch_sense_j"], freewheel_j=e["freewheel_j"], returned_j=e["returned_j"],
-        boost_j=e["boost_j"],
+        boost_j=e["boost_j"], eddy_j=e["eddy_j"],
         stored_j=e["stored_j"], energy_corner=pts.label(e["k"]) + (", the boost at its highest" if e["high"]
                                                                    else ", the boost at its lowest"),
         decay_time_s=e["decay_time_s"], peak_switch_voltage_v=b.switch_voltage_v,
@@ -823,7 +829,8 @@ def design_latch(drive: Drive) -> LatchDesign:
     else:
         t_th = 0.0
     t_decay = max(p.time_s + p.decay_time_s for p in pulses)
-    t_rc = max(p.time_s + p.recharge_time_s for p in pulses)
+    # (pulses from the boost leave the main bus's capacitor to the converter: main_bus)
+    t_rc = 0.0 if drive.supply.boosted else max(p.time_s + p.recharge_time_s for p in pulses)
     t_open = max(p.open_time_s or 0.0 for p in pulses)
     t_boost = max((p.boost.min_interval_s or 0.0) if p.boost is not None else 0.0 for p in pulses)
     parts = {"the pulse and its decay to zero": t_decay, "the coil's temperature": t_th,
@@ -849,11 +856,13 @@ def design_latch(drive: Drive) -> LatchDesign:
     if drive.duty is not None:
         cycle, more = _cycle(drive, pulses, interval)
         checks += more
+    bus, more = latch_boost.main_bus(drive, pulses, interval)
+    checks += more
     result = LatchResult(
         topology=drive.switch.topology, pulses=pulses, interval_s=interval, interval_ticks=ticks, cycle=cycle,
         governed_by=governed, decay_interval_s=t_decay, thermal_interval_s=t_th,
         recharge_interval_s=t_rc if drive.supply.droops else 0.0, armature_interval_s=t_open,
-        boost_interval_s=t_boost,
+        boost_interval_s=t_boost, main_bus=bus,
         derived=derived_values(drive),
         pulse_heat_j=heat,
         coil_rise_per_pulse_k=rise, hottest_coil_c=hottest, coil_limit_c=th.max_coil_temp,
@@ -927,7 +936,7 @@ def latch_waveforms(d: LatchDesign) -> dict:
     from ..model.latch_waveform import latch_actuation
 
     drive = d.drive
-    scale = 1.0 - drive.latch.recharge_tolerance if drive.supply.droops else 1.0
+    scale = 1.0 - drive.latch.recharge_tolerance if drive.supply.droops and not drive.supply.boosted else 1.0
     rt, lt = drive.coil.resistance_tolerance, drive.coil.inductance_tolerance
     points = {f"nominal: {drive.supply.nominal:g} V, coil {drive.ambient.max:g} degC":
               (drive.supply.nominal, drive.ambient.max, 1.0, 1.0),

@@ -32,24 +32,44 @@ Energy per pulse (the corner and side where the boost gives the most): from zero
 back to zero the capacitor's ``1/2 C (V_b^2 - v_C^2)`` is exactly what the loop takes::
 
     E_boost = R_coil (S_on + S_d) + R_switch S_on + R_sense (S_on [+ S_d]) + R_b S_on + E_freewheel
+              [+ E_eddy]
 
 (``S``: ``int i^2 dt`` over the on-time, in closed form by
 :func:`coildrive.model.boost.square_integral`, and over the decay; ``R_b`` the boost
 path's own resistance, ``boost_j``). The boost's recharge of the larger pulse's energy at
 ``boost_power`` enters the shortest interval between pulses.
+
+On a drooping main supply (``supply.source_resistance`` with ``capacitance``) the pulses
+still run from the boost alone (the main supply's diode blocks: ``*_boost_droop``) and
+each winding's freewheel path returns nothing to the main bus; what loads it is the boost
+converter, drawing ``boost_power / boost_efficiency`` while it recharges after each pulse
+(:class:`MainBus`, :func:`main_bus`, physics :mod:`coildrive.model.converter_bus`).
+
+A flux-linkage curve (the set winding's) or an eddy-current term (either winding's) takes
+each pulse on the monostable boosted peak's runs (:mod:`coildrive.model.flux_boost`,
+``model.of``): the threshold on the terminal current the sense reads, raised by the eddy
+share's bound ``V_b,max / R_e`` (:func:`coildrive.design.boost.threshold`), the pulse's
+current on the magnetising current; ``S_on`` the terminal current's, ``E_eddy`` the
+on-time's by the boost's balance (:func:`coildrive.model.boost.eddy_loss`) plus the
+release's (:func:`coildrive.model.eddy.release_eddy_energy`: the conduction, then the
+flux's tail through ``R_e``); the field's ``int i dpsi`` at the turn-off.
 """
 
 from __future__ import annotations
 
 import dataclasses
 import math
+from dataclasses import dataclass
 
 import numpy as np
 
 from ..config import Drive
 from ..model import boost as model
+from ..model import converter_bus
 from ..model.bridge import RETURN_DROPS, boost_return
 from ..model.circuit import freewheel_element_energy, full_bridge, loop
+from ..model.eddy import EddyCoil, release_eddy_energy, stored_energy
+from ..model.flux_boost import FluxBoost
 from ..model.rl import decay_integrals, decay_time
 from . import boost
 from .result import BoostResult, Check
@@ -84,10 +104,12 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult) -> dict:
     module docstring's balance; J): ``supply_j`` (from the boost), ``copper_j``,
     ``switch_sense_j``, ``boost_j`` (the boost path's ``R_b``), ``freewheel_j``,
     ``returned_j`` (a full bridge's back into the boost capacitor; 0 otherwise),
-    ``stored_j`` (``1/2 L I^2`` at the turn-off), and ``k`` the point, ``high`` the side;
-    ``decay_time_s`` the longest time to zero after a pulse, ``end_current_a`` the
-    highest current it turns off and ``net_j`` the most the boost net gives (drawn less
-    returned; over both sides)."""
+    ``eddy_j`` (an eddy term's resistance: on, freewheeling and the flux's tail; 0 without
+    one), ``stored_j`` (the field's ``int i dpsi`` at the turn-off: ``1/2 L I^2`` for a
+    linear coil, the magnetising branch's with an eddy term), and ``k`` the point,
+    ``high`` the side; ``decay_time_s`` the longest time to zero (of the terminal current)
+    after a pulse, ``end_current_a`` the highest (terminal) current it turns off and
+    ``net_j`` the most the boost net gives (drawn less returned; over both sides)."""
     trip = b.trip_max_a
     bridge = full_bridge(wd)
     r_b = wd.supply.boost_resistance
@@ -97,34 +119,41 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult) -> dict:
         m = model.of(bb)
         t = m.threshold_time(trip, bb, sensed=True) + late(wd)
         t = np.where(np.isfinite(t), t, 0.0)   # never reached: no pulse there (the check fails)
-        i_top, v_end = m.state(t, bb)
+        i_top, v_top = m.state(t, bb)   # (with an eddy term the magnetising current)
         s_on = m.square_integral(t, bb)
         drawn = m.energy_drawn(t, bb)
+        ind = lp.inductance
         sense = wd.board.sense
         r_sense = sense.resistance * sense_factor
-        if bridge:   # back into the boost capacitor (module docstring, *On a full bridge*)
-            back = return_decay(wd, rel, i_top, v_end, bb.c)
+        eddy = isinstance(ind, EddyCoil)
+        if bridge:   # back into the boost capacitor (module docstring, *On a full bridge*;
+            # a linear coil: config refuses a curve or an eddy term there)
+            back = return_decay(wd, rel, i_top, v_top, bb.c)
             t_zero, q_d, returned = back.zero_time, back.charge, back.returned
             fw = RETURN_DROPS * rel.diode(wd) * q_d
             # int i^2 dt of the decay by its energy balance: the field's 1/2 L i^2 into the
             # loop's resistance, the diodes and the capacitor
-            s_d = (0.5 * lp.inductance * i_top**2 - fw - returned) / (rel.r_off + r_b)
+            s_d = (0.5 * ind * i_top**2 - fw - returned) / (rel.r_off + r_b)
         else:
-            t_zero = decay_time(0.0, i_top, rel.r_off, rel.v_off, lp.inductance)
-            q_d, s_d = decay_integrals(t_zero, i_top, rel.r_off, rel.v_off, lp.inductance)
+            t_zero = decay_time(0.0, i_top, rel.r_off, rel.v_off, ind)
+            q_d, s_d = decay_integrals(t_zero, i_top, rel.r_off, rel.v_off, ind)
             fw, returned = freewheel_element_energy(wd, rel, q_d, s_d), 0.0 * drawn
         parts = {"supply_j": drawn, "copper_j": lp.r_coil * (s_on + s_d),
                  "switch_sense_j": (2.0 if bridge else 1.0) * wd.switch.on_resistance * s_on
                  + r_sense * (s_on + (s_d if bridge or sense.position == "coil" else 0.0)),
                  "boost_j": r_b * (s_on + (s_d if bridge else 0.0)),
                  "freewheel_j": fw, "returned_j": returned,
-                 "stored_j": 0.5 * lp.inductance * i_top**2}
+                 # the on-time's share by the boost's balance, then the release's (the
+                 # conduction, then the flux's tail through R_e alone)
+                 "eddy_j": (m.eddy_loss(t, bb) + release_eddy_energy(i_top, rel.r_off, rel.v_off, ind)
+                            if eddy else 0.0 * drawn),
+                 "stored_j": stored_energy(ind.magnetising if eddy else ind, i_top)}
         k = int(np.argmax(drawn))
         if best is None or float(drawn[k]) > best["supply_j"]:
             best = {name: float(np.broadcast_to(v, np.shape(drawn))[k]) for name, v in parts.items()}
             best.update(k=k, high=high)
         t_zero_max = max(t_zero_max, float(np.max(t_zero)))
-        i_max = max(i_max, float(np.max(i_top)))
+        i_max = max(i_max, float(np.max(m.terminal(i_top, v_top, bb))))
         net_max = max(net_max, float(np.max(drawn - returned)))
     return {**best, "decay_time_s": t_zero_max, "end_current_a": i_max, "net_j": net_max}
 
@@ -170,8 +199,16 @@ def firmware_time(wd: Drive, b: BoostResult, supply: float, coil_temp: float, r_
     t, m, bb = _threshold_tick(wd, b, supply, coil_temp, r_factor, l_factor)
     if b.timeout_s is None:
         top = float(m.peak_time(bb))
-        return min(t, top if np.isfinite(top) else 5.0 * float(bb.l / bb.r))
+        return min(t, top if np.isfinite(top) else 5.0 * _time_constant(bb))
     return min(t, b.timeout_s)
+
+
+def _time_constant(bb) -> float:
+    """``L/R`` (s) of one point's boost loop: a flux-linkage curve's at zero current (its
+    largest incremental inductance on a saturating curve)."""
+    if isinstance(bb, FluxBoost):
+        return float(np.ravel(bb.coil.scale)[0] * bb.coil.curve.incremental(0.0) / np.ravel(bb.r)[0])
+    return float(np.ravel(bb.l / bb.r)[0])
 
 
 def firmware_times_out(wd: Drive, b: BoostResult, supply: float, coil_temp: float, r_factor: float = 1.0,
@@ -218,10 +255,77 @@ def sample_figures(wd: Drive, lp, rel, sense_factor, b: BoostResult, current: fl
     t_trip = m.threshold_time(trip, bb, sensed=True)
     timeout = b.timeout_s or 0.0
     out = t_trip > timeout
-    end = np.where(out, m.state(np.minimum(t_trip, timeout), bb)[0], trip)
+    end = np.where(out, m.current(np.minimum(t_trip, timeout), bb, sensed=True), trip)
     t_long = np.minimum(t_trip + late(wd), timeout)
     i_top, v_c = m.state(t_long, bb)
     t_zero = (return_decay(wd, rel, i_top, v_c, bb.c).zero_time if full_bridge(wd) else
               decay_time(0.0, i_top, rel.r_off, rel.v_off, lp.inductance))
     return m.threshold_time(current, bb), end, m.energy_drawn(t_long, bb), t_zero, out
 
+
+@dataclass(frozen=True)
+class MainBus:
+    """The drooping main bus behind the pulses from the boost (``design --json``
+    ``latch.main_bus``; ``None`` on a stiff main supply). The boost converter draws
+    ``converter_draw_w`` W (``boost_power / boost_efficiency``) from it for ``draw_time_s``
+    s after every pulse (the larger pulse's energy from the boost at ``boost_power``), the
+    pulses coming every ``period_s`` s (the shortest interval: the fastest the firmware
+    may fire them); the pulses run from the boost and the freewheel paths return nothing
+    to it. ``lowest_bus_v``: the lowest bus, the periodic orbit's at the end of a draw
+    (from a full bus it only falls to it), at ``lowest_bus_corner`` (the source there,
+    ``source_v``), ``droop_v`` below that source; ``floor_v`` the bus a steady draw settles
+    at there (V_1 of :mod:`coildrive.model.converter_bus`). ``None`` where the source
+    behind ``R_s`` cannot carry the draw at all: it delivers at most ``source_limit_w`` =
+    ``V_s^2 / (4 R_s)`` at the lowest source. Units V, ohm, F, W, s (``period_s`` null in
+    the JSON where no interval is safe: then one draw from a full bus)."""
+
+    source_resistance_ohm: float
+    capacitance_f: float
+    converter_draw_w: float
+    draw_time_s: float
+    period_s: float
+    source_v: float
+    lowest_bus_v: float | None
+    lowest_bus_corner: str
+    droop_v: float | None
+    floor_v: float | None
+    source_limit_w: float
+
+
+def main_bus(drive: Drive, pulses: list, interval: float) -> tuple[MainBus | None, list[Check]]:
+    """The drooping main bus under the boost converter's recharges (:class:`MainBus`) at both
+    ends of the source (``supply.min``, ``supply.max``), pulses every ``interval`` s, and
+    its check ``boost_main_bus`` (the source carries the converter's draw); ``(None, [])``
+    on a stiff main supply."""
+    s = drive.supply
+    if not (s.boosted and s.droops):
+        return None, []
+    p_in = s.converter_draw
+    energy = max((p.boost.energy_j for p in pulses if p.boost is not None), default=0.0)
+    t_draw = energy / s.boost_power if s.boost_power > 0 else 0.0
+    v_s = np.array([s.min, s.max])
+    period = interval   # (inf where no interval is safe: one draw from a full bus)
+    low = converter_bus.orbit_low(v_s, s.source_resistance, s.capacitance, p_in, t_draw, max(period, t_draw))
+    floor = converter_bus.roots(v_s, s.source_resistance, p_in)[0]
+    carried = bool(np.all(np.isfinite(low)))
+    k = int(np.argmin(low)) if carried else 0
+    limit = s.min**2 / (4.0 * s.source_resistance)
+    bus = MainBus(
+        source_resistance_ohm=s.source_resistance, capacitance_f=s.capacitance, converter_draw_w=p_in,
+        draw_time_s=t_draw, period_s=period, source_v=float(v_s[k]),
+        lowest_bus_v=float(low[k]) if carried else None, lowest_bus_corner=f"source {v_s[k]:.4g} V",
+        droop_v=float(v_s[k] - low[k]) if carried else None, floor_v=float(floor[k]) if carried else None,
+        source_limit_w=limit)
+    if not carried:
+        return bus, [Check("boost_main_bus", False,
+                           f"the source at {s.min:.4g} V behind {s.source_resistance:.4g} ohm delivers at most "
+                           f"{limit:.4g} W, less than the boost converter's {p_in:.4g} W: the main bus collapses "
+                           "while the boost recharges -- a lower supply.source_resistance or a smaller "
+                           "supply.boost_power")]
+    every = f"every {period * 1e3:.4g} ms" if math.isfinite(period) else "once"
+    return bus, [Check("boost_main_bus", True,
+                       f"the boost converter draws {p_in:.4g} W from the main bus for {t_draw * 1e3:.4g} ms after "
+                       f"each pulse (pulses {every}): the bus falls {bus.droop_v:.4g} V to "
+                       f"{bus.lowest_bus_v:.4g} V at its {bus.lowest_bus_corner} (a steady draw settles at "
+                       f"{bus.floor_v:.4g} V); the pulses run from the boost and their freewheel paths return "
+                       "nothing to it")]

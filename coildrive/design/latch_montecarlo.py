@@ -89,7 +89,7 @@ def latch_monte_carlo(d: LatchDesign, samples: int, seed: int = 1, chunk: int = 
     pulse name each figure's percentiles, min and max, and ``failures``."""
     drive = d.drive
     rng = np.random.default_rng(seed)
-    scale = 1.0 - drive.latch.recharge_tolerance if drive.supply.droops else 1.0
+    scale = 1.0 - drive.latch.recharge_tolerance if drive.supply.droops and not drive.supply.boosted else 1.0
     supply = rng.uniform(drive.supply.min * scale, drive.supply.max, samples)
     temp = rng.uniform(drive.ambient.min, drive.thermal.max_coil_temp, samples)
     sense = factors(rng, drive.board.sense.resistance_tolerance, samples, "uniform")

@@ -80,6 +80,15 @@ def latch_table(d: LatchDesign) -> Table:
                      f"recharge {r.recharge_interval_s * 1e3:.4g} ms"
                      + (f", armature {r.armature_interval_s * 1e3:.4g} ms" if r.armature_interval_s else "")
                      + (f", boost recharge {r.boost_interval_s * 1e3:.4g} ms" if r.boost_interval_s else "")))
+    if r.main_bus is not None:
+        m = r.main_bus
+        t.add_row("lowest main bus", "none" if m.lowest_bus_v is None else f"{m.lowest_bus_v:.4g} V",
+                  escape(f"the boost converter draws {m.converter_draw_w:.4g} W for {m.draw_time_s * 1e3:.4g} ms "
+                         f"after each pulse, behind {m.source_resistance_ohm:.4g} ohm and "
+                         f"{m.capacitance_f * 1e6:.4g} uF; " + (
+                             f"pulsing at the interval, from the {m.lowest_bus_corner} (floor {m.floor_v:.4g} V)"
+                             if m.lowest_bus_v is not None else
+                             f"more than the source's most, {m.source_limit_w:.4g} W: the bus collapses")))
     if r.cycle is not None:
         c = r.cycle
         t.add_row("on/off cycle", f"{c.actuation_rate_hz:.4g} /s",

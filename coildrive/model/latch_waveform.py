@@ -23,13 +23,17 @@ freewheel path).
 
 From the boost (``[supply] boost``, two windings or a full bridge): each pulse's on-time
 is the boost capacitor's series RLC discharge into the winding (:mod:`coildrive.model.boost`,
-at its nominal charge and capacitance), the top of the coil the capacitor less ``R_b i``;
-after the pulse the winding's freewheel path returns its current to the top, which the
-main supply holds (the boost switch is off). On a full bridge the boost switch feeds the
-high-side rail and the fast decay returns up its body diode into the boost capacitor
-(:func:`coildrive.model.bridge.boost_return`): the rail is the capacitor + ``V_d + R_b i``
-then. A ``boost_v`` column is the capacitor through both pulses, recharged at
-``boost_power`` after each.
+at its nominal charge and capacitance; a flux-linkage curve's or an eddy term's by
+:mod:`coildrive.model.flux_boost`, the current then the terminal one), the top of the
+coil the capacitor less ``R_b i``; after the pulse the winding's freewheel path returns
+its current to the top, which the main supply holds (the boost switch is off). On a full
+bridge the boost switch feeds the high-side rail and the fast decay returns up its body
+diode into the boost capacitor (:func:`coildrive.model.bridge.boost_return`): the rail is
+the capacitor + ``V_d + R_b i`` then. A ``boost_v`` column is the capacitor through both
+pulses, recharged at ``boost_power`` after each. On a drooping main supply a
+``main_bus_v`` column is the main bus (:mod:`coildrive.model.converter_bus`: the
+converter draws ``boost_power / boost_efficiency`` from it while it recharges), which
+each switch's node follows while it is off.
 
 Units: s, A, V.
 """
@@ -100,10 +104,11 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
     gap_on = None
     if drive.armature is not None:   # the set pulse moves the armature (a drooping bus: a state of its run)
         t_on, i_on, gap_on, bus = _seating(drive, lp, l_factor, t_pulse, points, supply, coil_temp)
-    elif drive.supply.boosted:   # from the boost capacitor (config: a linear coil, no eddy term)
+    elif drive.supply.boosted:   # from the boost capacitor (a curve's, an eddy term's: model.flux_boost)
         b = boost_of(drive, r_on, ind)
-        i_on, v_c = boost_model.state(t_on, b)
-        bus = v_c - drive.supply.boost_resistance * i_on   # the top of the coil
+        m = boost_model.of(b)
+        i_on, v_c = m.state(t_on, b)
+        bus = v_c - drive.supply.boost_resistance * m.terminal(i_on, v_c, b)   # the top of the coil
     elif drive.supply.droops:
         s = drive.supply
         mag = ind.magnetising if r_e is not None else ind
@@ -202,11 +207,14 @@ def fast_trace(drive: Drive, rel, i0: float, v0: float, t):
     return flux_bus_decay.trace(t, *_fast_args(drive, rel, i0, v0), sink=drive.supply.sink)
 
 
-def boost_of(drive: Drive, r_on: float, inductance: float) -> boost_model.Boost:
+def boost_of(drive: Drive, r_on: float, inductance):
     """The boost at its nominal charge and capacitance feeding the winding's on-loop
-    ``r_on`` ohm (the boost path's own resistance added) and ``inductance`` H."""
+    ``r_on`` ohm (the boost path's own resistance added) and one point's coil
+    ``inductance`` (H, a :class:`~coildrive.model.flux.FluxCoil` or an
+    :class:`~coildrive.model.eddy.EddyCoil`: :func:`coildrive.model.boost.one_point`)."""
     s = drive.supply
-    return boost_model.boost(s.boost, s.boost_capacitance, r_on + s.boost_resistance, inductance)
+    return boost_model.boost(s.boost, s.boost_capacitance, r_on + s.boost_resistance,
+                             *boost_model.one_point(inductance))
 
 
 def _boost_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float, r_factor: float,
@@ -222,7 +230,7 @@ def _boost_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp: fl
     out = []
     for wd, start, length, part in ((drive, 0.0, set_time, time < gap), (reset_drive, gap, reset_time, time >= gap)):
         lp = loop(wd, supply, coil_temp, r_factor, l_factor)
-        b = boost_of(wd, float(lp.r_on), float(lp.inductance))
+        b = boost_of(wd, float(lp.r_on), lp.inductance)
         trace = boost_model.voltage_trace(time - start, length, b, wd.supply.boost_power)
         if full_bridge(wd):
             rel = loop(wd, supply, coil_temp, r_factor, l_factor, path="release")
@@ -236,6 +244,28 @@ def _boost_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp: fl
             trace = np.where(time - start <= length, trace, after)
         out.append(np.where(part, trace, 0.0))
     return out[0] + out[1]
+
+
+def _main_bus_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float, r_factor: float,
+                     l_factor: float, time, set_time: float, reset_time: float, gap: float) -> np.ndarray:
+    """The drooping main bus (V) through both pulses from a full bus at ``supply`` V: after
+    each pulse the boost converter draws ``boost_power / boost_efficiency`` from it while
+    it puts the pulse's ``1/2 C (V_b^2 - v_end^2)`` back at ``boost_power`` (the
+    ``boost_v`` column's recharge; each draw ends by the next pulse's start), the bus
+    resting in between (:func:`coildrive.model.converter_bus.trace`)."""
+    from . import converter_bus
+
+    s = drive.supply
+    starts, lengths = [], []
+    for wd, start, length, nxt in ((drive, 0.0, set_time, gap), (reset_drive, gap, reset_time, np.inf)):
+        lp = loop(wd, supply, coil_temp, r_factor, l_factor)
+        b = boost_of(wd, float(lp.r_on), lp.inductance)
+        v_end = float(boost_model.of(b).state(length, b)[1])
+        draw = 0.5 * float(b.c) * (s.boost**2 - v_end**2) / s.boost_power if s.boost_power > 0 else 0.0
+        starts.append(start + length)
+        lengths.append(min(draw, nxt - start - length))
+    return converter_bus.trace(time, starts, lengths, supply, s.source_resistance, s.capacitance,
+                               s.converter_draw)
 
 
 def _seating(drive: Drive, lp, l_factor: float, t_pulse: float, points: int, supply: float,
@@ -297,6 +327,15 @@ def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: 
     if drive.supply.boosted:
         cols["boost_v"] = _boost_column(drive, reset_drive, supply, coil_temp, r_factor, l_factor, time,
                                         set_time, reset_time, gap)
+    if drive.supply.boosted and drive.supply.droops and not full_bridge(drive):
+        main = _main_bus_column(drive, reset_drive, supply, coil_temp, r_factor, l_factor, time, set_time,
+                                reset_time, gap)
+        # each switch off, its node follows the top, which the main bus holds
+        off_s = np.concatenate([1.0 - ons, np.ones(n_i + tr.size)])
+        off_r = np.concatenate([np.ones(n_s + n_i), 1.0 - onr])
+        cols["switch_voltage_v"] = cols["switch_voltage_v"] + off_s * (main - supply)
+        cols["reset_switch_voltage_v"] = cols["reset_switch_voltage_v"] + off_r * (main - supply)
+        cols["main_bus_v"] = main
     gap_all = (None if gap_s is None else
                np.concatenate([gap_s, np.zeros(n_i), np.full(tr.size, np.nan)]))
     return LatchWaveform(cols, events, gap_all)
