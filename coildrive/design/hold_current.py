@@ -412,10 +412,6 @@ def _split_result(drive: Drive, fallback, cm: CurrentModeSteadyState):
 # --------------------------------------------------------------------------- design
 def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     """The Design of a current-mode drive (see the module docstring)."""
-    if drive.armature is not None and drive.coil.eddy_resistance:
-        raise InputError(drive.source, "coil.eddy_resistance", "a current-mode hold with an [armature] "
-                         "and an eddy-current term is not modelled yet; use mode = \"voltage\" or "
-                         "leave the eddy term out")
     if samples > 0:
         raise InputError("--samples", "", "the Monte Carlo covers the voltage-mode hold only "
                          "(this drive has hold.mode = \"current\")")
@@ -909,6 +905,15 @@ def _armature_actuation(drive: Drive, th: Thresholds, supply: float, coil_temp: 
     from ..model.waveform import armature_actuation
 
     def hold(t0, i0, v, r_on, r_off, v_off, seated):
+        if isinstance(seated, EddyCoil):   # the seated branch behind R_e: the terminal current sensed
+            from ..model.circuit import Loop
+            from ..model.eddy_waveform import seated_hold
+
+            one = np.ones(1)
+            lp = Loop(v * one, r_on * one, r_off * one, v_off * one, seated, one, v * one)
+            ts, cur, mag, ons, t, m, t_last = seated_hold(lp, t0, i0, t0 + hold_time, th.control, th.lower_a,
+                                                          th.upper_a, th.off_time_s, th.delay_s, points)
+            return ts, cur, ons, t, m, min(i0, float(np.min(mag, initial=i0))), t_last, mag
         ts, cs, ons = [], [], []
         t, i, last = threshold_hold(th, t0, i0, t0 + hold_time, v, r_on, r_off, v_off, seated,
                                     points, ts, cs, ons)
