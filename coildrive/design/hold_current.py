@@ -411,7 +411,13 @@ def _split_result(drive: Drive, fallback, cm: CurrentModeSteadyState):
 
 # --------------------------------------------------------------------------- design
 def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
-    """The Design of a current-mode drive (see the module docstring)."""
+    """The Design of a current-mode drive (see the module docstring). With an
+    ``[armature]`` and an eddy-current term a boosted peak is refused in one line (not
+    modelled yet)."""
+    if drive.armature is not None and drive.coil.eddy_resistance and drive.supply.boosted:
+        raise InputError(drive.source, "coil.eddy_resistance", "a current-mode hold with an [armature] "
+                         "and an eddy-current term after a boosted peak (supply.boost) is not modelled "
+                         "yet; use mode = \"voltage\", or leave out the eddy term or the boost")
     if samples > 0:
         raise InputError("--samples", "", "the Monte Carlo covers the voltage-mode hold only "
                          "(this drive has hold.mode = \"current\")")
