@@ -32,6 +32,11 @@ to it), then replaces everything the hold decides with the current-mode model of
   coil cold (at the ambient): the lowest bus in the peak, and on a full bridge every
   turn-off's fast decay into the bus (:mod:`coildrive.design.bridge_bus`) and the pump-up,
   each the worse of the settled and the cold coil.
+* with an ``[armature]`` the pull-in is the moving armature's run, the hold regulated on
+  the seated coil, the release from the band's top until the armature is back open; with
+  an eddy-current term too (the run's eddy branch, the thresholds on the seated coil's
+  sensed current, the hold's force from the magnetising current's RMS), except after a
+  boosted peak (refused in one line).
 
 In the design JSON ``hold.frequency_hz`` is the switching frequency at the nominal
 point, ``hold.duty`` the largest switch-on fraction over the corners (1 where the
@@ -903,10 +908,12 @@ def _armature_actuation(drive: Drive, th: Thresholds, supply: float, coil_temp: 
     """One actuation of a current-mode hold with a moving armature
     (:func:`coildrive.model.waveform.armature_actuation` with the thresholds as its hold):
     the pull-in run during the peak, the hold's closed-form segments on the seated coil
-    (:func:`threshold_hold`), the release run until the armature is back on the open
-    stop. Where the armature is not seated at the end of the peak, or the hold's current
-    falls below the stay current, the hold would switch with the armature in flight: not
-    modelled, refused in one line (``InputError``). Without a hold (``hold_time`` 0: a
+    (:func:`threshold_hold`; with an eddy-current term the seated branch behind ``R_e``,
+    the thresholds on its terminal current:
+    :func:`coildrive.model.eddy_waveform.seated_hold`), the release run until the armature
+    is back on the open stop. Where the armature is not seated at the end of the peak, or
+    the hold's (magnetising) current falls below the stay current, the hold would switch
+    with the armature in flight: not modelled, refused in one line (``InputError``). Without a hold (``hold_time`` 0: a
     STOP in the peak) the switch opens at the peak's end, the armature wherever it is."""
     from ..model.waveform import armature_actuation
 
