@@ -383,16 +383,18 @@ def test_split_decay_simulate_against_solve_ivp(tmp_path):
     opened inside the last on-time (the freewheel blocking where the terminal current
     would reverse: then the flux through R_e); simulate's edges and the open stop against
     this file's solve_ivp with each path's R_off and V_off (model.circuit.loop's, per
-    path; the first off-time, slow, takes 9 ms down from the peak). Measured: edges
-    13 edges within 8e-11 s, open 8e-9 relative."""
+    path; the first off-time, slow, takes 9 ms down from the peak). The bypass opens
+    100 us before the final turn-off: a row inside the last on-time. Measured: 13 edges
+    within 8e-11 s, open 8e-9 relative."""
     from coildrive.model.circuit import loop
 
     path = _drive_file(tmp_path)
     path.write_text(path.read_text().replace("relay-12bit-resistor.toml", "lab-m32-zener.toml")
-                    + "\n[freewheel]\nsplit_decay = true\n")
+                    + '\n[freewheel]\nsplit_decay = true\nbypass_lead = "100 us"\n')
     d = make_design(load_drive(path))
-    assert d.split_decay is not None and d.drive.freewheel.bypass_lead >= 0
-    t, on, x, bypass = _simulated(path, tmp_path, "20 ms", "time_s", "switch_on", "position_m", "bypass_on")
+    assert d.split_decay is not None and d.drive.freewheel.bypass_lead == pytest.approx(1e-4)
+    t, i, m, on, x, bypass = _simulated(path, tmp_path, "20 ms", "time_s", "current_a", "magnetising_current_a",
+                                        "switch_on", "position_m", "bypass_on")
     fast = loop(d.drive, np.array([12.0]), np.array([40.0]), path="release")
     th = d.hold.thresholds
     ref = reference(_point(d.drive, 12.0, 40.0), d.drive.coil.eddy_resistance, th.lower_a, th.upper_a,
@@ -400,6 +402,13 @@ def test_split_decay_simulate_against_solve_ivp(tmp_path):
     edges = t[np.flatnonzero(np.diff(on) != 0)]
     assert edges.size == ref["edges"].size and np.max(np.abs(edges - ref["edges"])) < 1e-9
     assert np.all(bypass[t > edges[-1]] == 0) and np.all(bypass[t < edges[-2]] == 1)
+    # the bypass opens 100 us before the final turn-off, inside the last on-time: a row
+    # there, its sensed current the on-loop's (V + R_e i_m) / (R_on + R_e)
+    k = np.flatnonzero(np.diff(bypass) != 0)[0] + 1
+    g, r_e = _point(d.drive, 12.0, 40.0), d.drive.coil.eddy_resistance
+    assert t[k] == pytest.approx(edges[-1] - 1e-4, abs=1e-10) and on[k] == 1
+    assert i[k] == pytest.approx((g["v_on"] + r_e * m[k]) / (g["r_on"] + r_e), rel=1e-8)
+    assert m[k - 1] < m[k] < m[k + 1]
     back = t[np.flatnonzero((t > edges[-1]) & (x >= d.drive.armature.stroke))[0]]
     assert back == pytest.approx(ref["open"], rel=1e-6)
 
