@@ -268,7 +268,8 @@ def test_on_the_drooping_bus(tmp_path):
     switching period against this file's reference (the hold's orbit does not depend on
     where the peak left the flux). Measured: seat 3e-8 (design) and 6e-10 (simulate),
     lowest bus 2.3e-6 V (the CSV's 10 uV steps), period 7e-9 relative. (On this cable the
-    latch fails its pull-in and supply checks: the figures, not the verdict, are checked.)"""
+    latch fails its pull-in and supply checks: the figures, not the verdict, are checked.)
+    The model's virtual device on the cable passes `check` at 12 V (plumbing)."""
     from test_armature_droop_eddy import reference as droop_reference
 
     from coildrive.model.armature import params_from_loop
@@ -298,6 +299,7 @@ def test_on_the_drooping_bus(tmp_path):
     edges = t[np.flatnonzero(np.diff(on) != 0)]
     stiff = reference(_point(drive, 12.0, 40.0), r_e, th.lower_a, th.upper_a, d.pull_in.peak_time_s, 4e-3)
     assert edges[-1] - edges[-3] == pytest.approx(stiff["period"], rel=1e-7)
+    device_check(d, tmp_path, corners=((12.0, 40.0),), can_fail=False)   # plumbing: the model's device
 
 
 def test_bridge_simulate_csv_against_solve_ivp(tmp_path):
