@@ -156,3 +156,42 @@ def boost_peak(rhs, start, at_trip, seat, y: list, t_peak: float, opts: dict, ou
             t, y = float(sol.t[-1]), list(sol.y[:, -1])
     out["trip"] = t
     return t, y, free
+
+
+def flux_pieces(g: dict, dlam):
+    """solve_ivp's pieces over the flux linkage ``lam`` (:func:`equations`), the circuit's
+    ``dlam(lam, x, on)`` given: ``(resting(x, on), free(on), event(f, direction))`` --
+    the armature at rest at gap ``x`` (``y = [lam]``), in flight (``y = [lam, x, v]``),
+    and a terminal event."""
+    _, opening, pull = equations(g)
+
+    def resting(x, on):
+        return lambda t, y: [dlam(y[0], x, on)]
+
+    def free(on):
+        return lambda t, y: [dlam(y[0], y[1], on), y[2],
+                             (opening(y[1]) - pull(y[0]) - g["damping"] * y[2]) / g["mass"]]
+
+    def event(f, direction):
+        f.terminal, f.direction = True, direction
+        return f
+
+    return resting, free, event
+
+
+def switched_on_peak(g: dict, dlam, t_peak: float, tol: dict):
+    """The peak with the switch on from rest (solve_ivp with ``tol``, three pieces): resting
+    open until the pull beats spring + load, free to the seat (inelastic), seated until
+    ``t_peak`` s. Returns ``(t_move s, t_seat s, lam at t_peak Wb)``."""
+    from scipy.integrate import solve_ivp
+
+    _, opening, pull = equations(g)
+    resting, free, event = flux_pieces(g, dlam)
+    stroke = g["stroke"]
+    s = solve_ivp(resting(stroke, True), (0, t_peak), [0.0],
+                  events=event(lambda t, y: pull(y[0]) - opening(stroke), 1), **tol)
+    t_move, lam = s.t_events[0][0], s.y_events[0][0][0]
+    s = solve_ivp(free(True), (t_move, t_peak), [lam, stroke, 0.0], events=event(lambda t, y: y[1], -1), **tol)
+    t_seat, lam = s.t_events[0][0], s.y_events[0][0][0]
+    s = solve_ivp(resting(0.0, True), (t_seat, t_peak), [lam], **tol)
+    return t_move, t_seat, float(s.y[0, -1])

@@ -32,6 +32,11 @@ to it), then replaces everything the hold decides with the current-mode model of
   coil cold (at the ambient): the lowest bus in the peak, and on a full bridge every
   turn-off's fast decay into the bus (:mod:`coildrive.design.bridge_bus`) and the pump-up,
   each the worse of the settled and the cold coil.
+* with an ``[armature]`` the pull-in is the moving armature's run, the hold regulated on
+  the seated coil, the release from the band's top until the armature is back open; with
+  an eddy-current term too (the run's eddy branch, the thresholds on the seated coil's
+  sensed current, the hold's force from the magnetising current's RMS), except after a
+  boosted peak (refused in one line).
 
 In the design JSON ``hold.frequency_hz`` is the switching frequency at the nominal
 point, ``hold.duty`` the largest switch-on fraction over the corners (1 where the
@@ -411,11 +416,13 @@ def _split_result(drive: Drive, fallback, cm: CurrentModeSteadyState):
 
 # --------------------------------------------------------------------------- design
 def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
-    """The Design of a current-mode drive (see the module docstring)."""
-    if drive.armature is not None and drive.coil.eddy_resistance:
+    """The Design of a current-mode drive (see the module docstring). With an
+    ``[armature]`` and an eddy-current term a boosted peak is refused in one line (not
+    modelled yet)."""
+    if drive.armature is not None and drive.coil.eddy_resistance and drive.supply.boosted:
         raise InputError(drive.source, "coil.eddy_resistance", "a current-mode hold with an [armature] "
-                         "and an eddy-current term is not modelled yet; use mode = \"voltage\" or "
-                         "leave the eddy term out")
+                         "and an eddy-current term after a boosted peak (supply.boost) is not modelled "
+                         "yet; use mode = \"voltage\", or leave out the eddy term or the boost")
     if samples > 0:
         raise InputError("--samples", "", "the Monte Carlo covers the voltage-mode hold only "
                          "(this drive has hold.mode = \"current\")")
@@ -901,14 +908,25 @@ def _armature_actuation(drive: Drive, th: Thresholds, supply: float, coil_temp: 
     """One actuation of a current-mode hold with a moving armature
     (:func:`coildrive.model.waveform.armature_actuation` with the thresholds as its hold):
     the pull-in run during the peak, the hold's closed-form segments on the seated coil
-    (:func:`threshold_hold`), the release run until the armature is back on the open
-    stop. Where the armature is not seated at the end of the peak, or the hold's current
-    falls below the stay current, the hold would switch with the armature in flight: not
-    modelled, refused in one line (``InputError``). Without a hold (``hold_time`` 0: a
+    (:func:`threshold_hold`; with an eddy-current term the seated branch behind ``R_e``,
+    the thresholds on its terminal current:
+    :func:`coildrive.model.eddy_waveform.seated_hold`), the release run until the armature
+    is back on the open stop. Where the armature is not seated at the end of the peak, or
+    the hold's (magnetising) current falls below the stay current, the hold would switch
+    with the armature in flight: not modelled, refused in one line (``InputError``). Without a hold (``hold_time`` 0: a
     STOP in the peak) the switch opens at the peak's end, the armature wherever it is."""
     from ..model.waveform import armature_actuation
 
     def hold(t0, i0, v, r_on, r_off, v_off, seated):
+        if isinstance(seated, EddyCoil):   # the seated branch behind R_e: the terminal current sensed
+            from ..model.circuit import Loop
+            from ..model.eddy_waveform import seated_hold
+
+            one = np.ones(1)
+            lp = Loop(v * one, r_on * one, r_off * one, v_off * one, seated, one, v * one)
+            ts, cur, mag, ons, t, m, t_last = seated_hold(lp, t0, i0, t0 + hold_time, th.control, th.lower_a,
+                                                          th.upper_a, th.off_time_s, th.delay_s, points)
+            return ts, cur, ons, t, m, min(i0, float(np.min(mag, initial=i0))), t_last, mag
         ts, cs, ons = [], [], []
         t, i, last = threshold_hold(th, t0, i0, t0 + hold_time, v, r_on, r_off, v_off, seated,
                                     points, ts, cs, ons)

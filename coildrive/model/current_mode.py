@@ -61,7 +61,10 @@ edge trips the other threshold at once and the switch chatters at the comparator
 speed. Those points are ``chatter`` (and not ``regulated``); the design fails them.
 ``i_min``/``i_max`` are then the magnetising current's (the release starts from
 ``i_max``), ``terminal_min``/``terminal_max`` the sensed ripple's ends, ``eddy_energy``
-the eddy resistance's energy per period (J), as in the PWM hold
+the eddy resistance's energy per period (J), ``magnetising_rms`` the magnetising
+current's RMS (A: what a moving armature's force goes with; the sensed RMS is higher by
+the eddy branch's share, while the two means are equal, the branch voltage averaging to
+zero over a period), as in the PWM hold
 (:class:`~coildrive.model.pwm.PwmSteadyState`).
 
 All functions broadcast over numpy arrays; units A, V, ohm, H, s, Hz.
@@ -111,6 +114,7 @@ class CurrentModeSteadyState:
     terminal_max: np.ndarray | None = None
     eddy_energy: np.ndarray | None = None
     chatter: np.ndarray | None = None
+    magnetising_rms: np.ndarray | None = None
 
     def as_pwm(self) -> PwmSteadyState:
         """The same steady state in the voltage-mode container (same field meanings), so
@@ -120,7 +124,7 @@ class CurrentModeSteadyState:
                               period=self.period, charge_on=self.charge_on, square_on=self.square_on,
                               charge_off=self.charge_off, square_off=self.square_off,
                               terminal_min=self.terminal_min, terminal_max=self.terminal_max,
-                              eddy_energy=self.eddy_energy)
+                              eddy_energy=self.eddy_energy, magnetising_rms=self.magnetising_rms)
 
 
 def _unregulated(bottom, top, t_on, t_off, conduction, a, regulated):
@@ -287,10 +291,11 @@ def _eddy_finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off,
                                                         regulated)
     period = t_on + t_off
     r_e = e.resistance
-    q_on, s_on, w_on, q_off, s_off, w_off = _eddy_integrals(bottom, top, t_on, t_off, conduction,
-                                                            v_on, r_on, r_off, v_off, e)
+    q_on, s_on, w_on, q_off, s_off, w_off, s_mag = _eddy_integrals(
+        bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, e)
     # unregulated: the coil carries V/R_on, no branch voltage and so no eddy current
     q_on, s_on = np.where(regulated, q_on, a * t_on), np.where(regulated, s_on, a * a * t_on)
+    s_mag = np.where(regulated, s_mag, a * a * t_on)
     q_off, s_off = np.where(regulated, q_off, 0.0), np.where(regulated, s_off, 0.0)
     w = np.where(regulated, w_on + w_off, 0.0)
     dcm = regulated & (conduction < t_off)
@@ -303,12 +308,13 @@ def _eddy_finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off,
         period=period, frequency=np.where(regulated, 1.0 / period, 0.0), duty=t_on / period,
         regulated=regulated, dcm=dcm, conduction_off=conduction, charge_on=q_on, square_on=s_on,
         charge_off=q_off, square_off=s_off, terminal_min=t_min, terminal_max=t_max, eddy_energy=w,
-        chatter=chatter)
+        chatter=chatter, magnetising_rms=np.sqrt(np.maximum(s_mag / period, 0.0)))
 
 
 def _eddy_integrals(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, e: EddyCoil):
     """Terminal ``(q_on, s_on, w_on, q_off, s_off, w_off)`` (A*s, A^2*s, J of the eddy
-    resistance) of an orbit whose magnetising current's ends are known: on from
+    resistance) and the magnetising current's square integral over the period (A^2*s)
+    of an orbit whose magnetising current's ends are known: on from
     ``bottom`` to ``top``; off, the freewheel conducting for ``conduction`` s from ``top``
     down to ``bottom`` or to ``V_off / R_e`` where it blocks, then the flux through
     ``R_e`` alone down to ``bottom``. From the end currents, a curve's segments need no
@@ -327,5 +333,6 @@ def _eddy_integrals(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_o
                                           0.0, r_e)
     q_on, s_on, w_on = eddy._terminal_integrals(t_on, qm, sm, v_on, r_on, r_e)
     q_off, s_off, w_off = eddy._terminal_integrals(conduction, qm_off, sm_off, -v_off, r_off, r_e)
-    w_off = w_off + np.where(tail, r_e * s_tail, 0.0)
-    return q_on, s_on, w_on, q_off, s_off, w_off
+    s_tail = np.where(tail, s_tail, 0.0)
+    w_off = w_off + r_e * s_tail
+    return q_on, s_on, w_on, q_off, s_off, w_off, sm + sm_off + s_tail

@@ -287,25 +287,45 @@ def threshold_actuation(drive: Drive, lp: Loop, peak_time: float, hold_time: flo
                         off_time: float, delay: float, release: Loop | None = None,
                         lead: float = 0.0):
     """The sample pieces of one actuation with a current-mode hold and the last on-time's
-    length: ``(pieces, s)``, the pieces those of :func:`actuation` (no fast parts). The controller compares the SENSED (terminal) current
-    with its thresholds -- hysteretic: off when it reaches ``upper`` A, on again when it
-    falls to ``lower`` A; ``"off_time"``: off at ``upper`` A for ``off_time`` s -- each
-    edge ``delay`` s late. A threshold is a magnetising current that depends on the
-    loop that conducts (:func:`coildrive.model.current_mode.sensed_threshold`); the hold
-    ends at the top of its last on-time after ``hold_time`` s. The terminal current
-    steps at every edge (two samples at the edge's instant). ``release``/``lead``: split
+    length: ``(pieces, s)``, the pieces those of :func:`actuation` (no fast parts): the
+    peak, the hold of :func:`threshold_hold`, the release. ``release``/``lead``: split
     decay's fast loop and bypass lead, as in :func:`actuation` (the hold's off-times
     through ``lp``'s slow path, the release from the last turn-off through the fast one)."""
     big = 40 * points
     pt, peak_end, ts, cs, ms, ons = _peak(drive, lp, peak_time, big)
-    last = [peak_end, 0.0]   # the latest on segment's start (magnetising A) and length (s)
     fasts = [np.zeros_like(ts[0])]
+    pieces = (ts, ms, cs, ons, fasts)
+    t, m, last = threshold_hold(pt, peak_time, peak_end, peak_time + hold_time, control, lower, upper,
+                                off_time, delay, points, pieces)
+    t_zero = _release_samples(pt, release, lead, t, m, last[0], last[1], big, pieces)
+    return (ts, cs, ms, ons, fasts, t, t_zero), last[1]
+
+
+def threshold_hold(pt: _Point, t: float, m: float, end: float, control: str, lower: float,
+                   upper: float, off_time: float, delay: float, points: int,
+                   pieces) -> tuple[float, float, list]:
+    """A current-mode hold at one point ``pt`` from ``t`` s and ``m`` A of magnetising
+    current (the end of the peak) until the first turn-off edge at or after ``end`` s,
+    appended to the sample pieces ``(time, magnetising, terminal, switch_on, fast)``
+    (the first off-time, down from the peak, in ``40 points`` samples). The controller
+    compares the SENSED (terminal) current with its thresholds -- hysteretic: off when it
+    reaches ``upper`` A, on again when it falls to ``lower`` A; ``"off_time"``: off at
+    ``upper`` A for ``off_time`` s -- each edge ``delay`` s late. A threshold is a
+    magnetising current that depends on the loop that conducts
+    (:func:`coildrive.model.current_mode.sensed_threshold`). The terminal current steps
+    at every edge (two samples at the edge's instant). Where the threshold is out of
+    reach (or the band chatters) the switch stays on to ``end``. Returns ``(t_off s,
+    magnetising current there A, [start of the last on-time's magnetising current A, its
+    length s])`` (``[m, 0]`` without an on-time)."""
+    ts, ms, cs, ons, fasts = pieces
+    last = [m, 0.0]   # the latest on segment's start (magnetising A) and length (s)
     v, r_on = pt.v, pt.r_on
     m_hi = (r_on + pt.re) * upper / pt.re - v / pt.re
     m_lo = ((pt.r_off + pt.re) * lower + pt.v_off) / pt.re
     top = pt.on.i[-1]
     regulated = upper < v / r_on and (m_lo < m_hi if control == "hysteretic" else m_hi > 0)
-    t, m, end, first = peak_time, peak_end, peak_time + hold_time, True
+    first = True
+    big = 40 * points
     frac = np.linspace(0.0, 1.0, points + 1)
 
     def on_for(t, m, dur):   # append an on segment of dur s from i_m = m A at t s
@@ -336,6 +356,20 @@ def threshold_actuation(drive: Drive, lp: Loop, peak_time: float, hold_time: flo
         if dur > 0:
             t, m = on_for(t, m, dur)
     if not regulated:   # the threshold is out of reach (or chatters): the switch stays on
-        t, m = on_for(t, m, hold_time)
-    t_zero = _release_samples(pt, release, lead, t, m, last[0], last[1], big, (ts, ms, cs, ons, fasts))
-    return (ts, cs, ms, ons, fasts, t, t_zero), last[1]
+        t, m = on_for(t, m, end - t)
+    return t, m, last
+
+
+def seated_hold(lp: Loop, t: float, m: float, end: float, control: str, lower: float, upper: float,
+                off_time: float, delay: float, points: int):
+    """:func:`threshold_hold` on one point's loop ``lp`` (an
+    :class:`~coildrive.model.eddy.EddyCoil` inductance: a moving armature's seated coil)
+    from ``t`` s and ``m`` A of magnetising current, as arrays: ``(time s, terminal A,
+    magnetising A, switch_on, t_off s, magnetising current at t_off A, start of the last
+    on-time s)`` (each edge two rows at the same time)."""
+    pt = _Point(lp, m)
+    pieces = ([], [], [], [], [])
+    t_off, m_off, last = threshold_hold(pt, t, m, end, control, lower, upper, off_time, delay, points,
+                                        pieces)
+    ts, ms, cs, ons, _ = (np.concatenate(x) if x else np.empty(0) for x in pieces)
+    return ts, cs, ms, ons, t_off, m_off, t_off - last[1]

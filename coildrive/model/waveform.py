@@ -599,10 +599,13 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     ``frequency`` then unused), ``hold(t_start, i0, v_on, r_on, r_off, v_off, inductance)
     -> (time, current, switch_on, t_off, i_off, lowest, t_last_on)`` on the seated coil
     from the end of the peak: its samples, the final turn-off's time s and current A,
-    the lowest current A and the start of the last on-time s. It needs the armature
-    seated at the end of the peak and the hold never below the stay current (else
-    ``ValueError``: a hold switched by thresholds with the armature in flight is not
-    modelled), and takes no eddy term or mixed decay. On a full bridge its on-times are
+    the lowest current A and the start of the last on-time s. With an eddy term
+    ``inductance`` is the seated :class:`~coildrive.model.eddy.EddyCoil`, ``i0``,
+    ``i_off`` and ``lowest`` are magnetising currents, ``current`` the terminal one (two
+    rows at each edge) and an eighth item the samples' magnetising current. It needs the
+    armature seated at the end of the peak and the hold's (magnetising) current never
+    below the stay current (else ``ValueError``: a hold switched by thresholds with the
+    armature in flight is not modelled), and takes no mixed decay. On a full bridge its on-times are
     Q1 + Q4 and its off-times the slow decay (the hold's loop), the release the fast one
     (on the drooping bus riding it, :func:`_bus_release`).
     """
@@ -693,27 +696,39 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
         return _joined(head, rest, float(p.v_on[0])), bus
 
     tr = None
-    if hold is not None and (p.eddy is not None or mixed is not None or peak_time <= 0):
-        raise ValueError("a hold switched by thresholds with an [armature] takes no eddy term "
-                         "or mixed decay, and needs a peak")
-    if peak_time > 0 and p.eddy is None:
+    if hold is not None and (mixed is not None or peak_time <= 0):
+        raise ValueError("a hold switched by thresholds with an [armature] takes no mixed decay, "
+                         "and needs a peak")
+    mh = None   # with an eddy term and thresholds: the hold's magnetising current
+    if peak_time > 0 and (p.eddy is None or hold is not None):
         # Fast path: seated at the end of the peak and the hold current never below the
         # stay current -- then the hold is the closed-form PWM of the seated coil (with
-        # the coil's two curves, the seated curve's tabulated exact segments).
+        # the coil's two curves, the seated curve's tabulated exact segments; thresholds
+        # with an eddy term: the seated coil's magnetising branch behind R_e, the terminal
+        # current compared).
         head = simulate(p_peak, schedule[:1], method=method, points=points)
-        i0 = float(head.current[-1])
+        i0 = float(head.current[-1] if p.eddy is None else head.magnetising_current[-1])
         if head.state == "seated" and main is None:
             v, r_on, r_off, v_off = (float(a[0]) for a in (p.v_on, p.r_on, p.r_off, p.v_off))
-            seated = float(p.l_closed[0]) if p.curves is None else p.coil_closed[0]
+            seated = float(p.l_closed[0]) if p.curves is None and p.eddy is None else p.coil_closed[0]
             if hold is not None:   # thresholds: the final turn-off and the bypass follow them
-                th, ih, oh, t_cut, i_cut, lowest, t_last = hold(peak_time, i0, v, r_on, r_off, v_off,
-                                                                seated)
+                th, ih, oh, t_cut, i_cut, lowest, t_last, *more = hold(peak_time, i0, v, r_on, r_off,
+                                                                       v_off, seated)
+                mh = more[0] if more else None
                 t_off, t_on = t_cut, t_cut - t_last
                 t_open = (t_off - min(lead, t_on) if lead >= 0 else t_off + lag) if split else math.inf
                 if split and t_last < t_open < t_cut and not np.any(th == t_open):
                     at = int(np.searchsorted(th, t_open))
-                    i_open = float(rise_current(t_open - t_last, float(np.interp(t_last, th, ih)),
-                                                v, r_on, seated))
+                    if mh is None:
+                        i_open = float(rise_current(t_open - t_last, float(np.interp(t_last, th, ih)),
+                                                    v, r_on, seated))
+                    else:   # the last on-time's magnetising current, its terminal current
+                        from . import eddy as eddy_model
+                        start = float(mh[np.searchsorted(th, t_last, side="right") - 1])
+                        m_open = float(np.ravel(eddy_model.rise_current(t_open - t_last, start, v, r_on,
+                                                                        seated))[0])
+                        i_open = float(np.ravel(p.terminal(m_open, True))[0])
+                        mh = np.insert(mh, at, m_open)
                     th, ih, oh = (np.insert(th, at, t_open), np.insert(ih, at, i_open),
                                   np.insert(oh, at, 1.0))
             elif mixed is not None:   # the seated coil's three segments (mixed_waveform)
@@ -740,17 +755,23 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
                                 release_params=p_rel)
                 zeros = np.zeros_like(th)
                 tr = head
-                tr.time = np.concatenate([head.time, th, tail.time[1:]])
-                tr.current = np.concatenate([head.current, ih, tail.current[1:]])
+                # with an eddy term the tail's first row stays: the terminal current steps
+                # at the final turn-off (two rows at its instant, as at every edge)
+                k = 1 if mh is None else 0
+                tr.time = np.concatenate([head.time, th, tail.time[k:]])
+                tr.current = np.concatenate([head.current, ih, tail.current[k:]])
                 tr.switch_on = np.concatenate([head.switch_on, oh.astype(np.int8),
-                                               tail.switch_on[1:]])
-                tr.position = np.concatenate([head.position, zeros, tail.position[1:]])
-                tr.velocity = np.concatenate([head.velocity, zeros, tail.velocity[1:]])
+                                               tail.switch_on[k:]])
+                tr.position = np.concatenate([head.position, zeros, tail.position[k:]])
+                tr.velocity = np.concatenate([head.velocity, zeros, tail.velocity[k:]])
+                if mh is not None:
+                    tr.magnetising_current = np.concatenate([head.magnetising_current, mh,
+                                                             tail.magnetising_current])
                 tr.log = head.log + tail.log
                 tr.events = {**tail.events, **head.events}
                 if head.bus is not None:
-                    tr.bus = np.concatenate([head.bus, np.full(th.size + tail.time.size - 1, float(p.v_on[0]))])
-        if tr is None and p_peak is not p:
+                    tr.bus = np.concatenate([head.bus, np.full(th.size + tail.time.size - k, float(p.v_on[0]))])
+        if tr is None and p_peak is not p and hold is None:
             # the peak on the drooping bus, then on from its end state on the stiff bus (after
             # a boost on a drooping main supply: on the main bus, from the source's voltage)
             tr, main_bus = after_peak(head, bool(head.current[-1] > 0))
