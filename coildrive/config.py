@@ -1478,14 +1478,15 @@ def _read_boost(s: "_Section") -> tuple:
             s.fraction("boost_efficiency", 0.0, below_one=False))
 
 
-def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature: Armature | None,
+def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply,
                            latch: "Latch | None") -> tuple[str, str] | None:
     """``(key, why)`` where a latching coil's pulses from the boost are not modelled, else
     ``None``: they are (:mod:`coildrive.design.latch_boost`) for a linear coil without an
-    eddy term, a reset winding on a second low- or high-side switch, no ``[armature]``, a
-    stiff main supply and no settle time after the reset pulse."""
-    if armature is not None:
-        return "armature", "a latching coil with a moving armature (its seat run from the boost)"
+    eddy term, a reset winding on a second low- or high-side switch, with or without an
+    ``[armature]`` (the set pulse's seat run from the boost capacitor: the design refuses in
+    one line where it is not on the seat when the current reaches the threshold,
+    :func:`coildrive.design.latch_boost.armature_pulse`), a stiff main supply and no settle
+    time after the reset pulse."""
     if supply.droops:
         return "supply.source_resistance", ("a latching coil on a drooping main supply (its pulses from "
                                             "the boost: a stiff main supply only)")
@@ -1550,8 +1551,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                                    "eddy-current term (the release into the drooping bus with the "
                                    "converter drawing and the feed blocking is a linear coil's or a "
                                    "curve's without one)")
-    elif hold.mode == "latch" and _boosted_latch_refusal(coil, switch, supply, armature, latch):
-        key, why = _boosted_latch_refusal(coil, switch, supply, armature, latch)
+    elif hold.mode == "latch" and _boosted_latch_refusal(coil, switch, supply, latch):
+        key, why = _boosted_latch_refusal(coil, switch, supply, latch)
     elif hold.mode == "latch" and freewheel.type == "clamp":
         key, why = "freewheel.type", ("a latching coil's pulses from the boost with a clamp across the switch "
                                       "(the clamp's draw after each pulse is the main bus's: modelled without "
@@ -1588,7 +1589,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "eddy term too, no clamp), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
                          "with [armature]: no mixed decay, no restitution with an eddy term; a "
-                         "latching coil: a linear coil and its reset winding, a stiff main supply, no [armature]")
+                         "latching coil: a linear coil and its reset winding, a stiff main supply (with [armature]: seated "
+                         "by the set pulse's threshold)")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,
