@@ -217,3 +217,34 @@ def test_a_plunger_in_flight_at_the_threshold_is_refused_in_one_line(tmp_path):
     r = run_cli("design", str(plunger_valve(tmp_path, margin=1.2)))
     assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1, r.stderr
     assert "pull_in.current_margin" in r.stderr and "in flight" in r.stderr and "Traceback" not in r.stderr
+
+
+def test_the_compiled_driver_in_the_loop_passes_check(valve, tmp_path, monkeypatch):
+    """firmware-driver -> the compiled latch driver (gcc) in the model's device, ending each
+    pulse at the tick its reading reaches the code while the plunger's run sets the current
+    (plumbing: the model is the design's own) -> check passes; 40 % more resistance fails."""
+    from test_emulator_device import capture_of, run as run_device
+    from conftest import require_tool
+    from coildrive.bench.device import DeviceOptions
+    from coildrive.bench.latch_check import check_latch_capture
+    from coildrive.bench.latch_firmware_device import LatchFirmwareDevice
+    from coildrive.codegen.host_build import build_latch_firmware
+    from coildrive.codegen.latch_driver import pulse_switches
+    from coildrive.design.latch import firmware_pulse
+
+    require_tool("gcc")
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "cache"))
+    path, _, d = valve
+    r = run_cli("firmware-driver", str(path), "--out", str(tmp_path / "fw"))
+    assert r.returncode == 0, r.stderr
+    lib = build_latch_firmware(tmp_path / "fw", d)
+    for name, scale, ok in (("good", 1.0, True), ("hot", 1.4, False)):
+        dev = LatchFirmwareDevice(d, lib, pulse_switches(d), DeviceOptions(noise_codes=0.5, seed=5, supply=9.0,
+                                                                           coil_temp=100.0, resistance_scale=scale))
+        msgs, _ = run_device(dev, 0.05 + dev.interval + 2.2 * dev.period, step=0.05)
+        rep = check_latch_capture(capture_of(msgs, tmp_path / f"{name}.cdcap"), d, coil_temp=100.0)
+        assert rep.ok is ok and not dev.faults, (name, [(i.name, i.status, i.detail) for i in rep.items])
+        if ok:   # each set pulse as long as the model's firmware runs it there
+            sets = [p for p in rep.analysis.pulses if p.name == "set" and p.partial is None]
+            assert sets and all(p.length_s == pytest.approx(firmware_pulse(d, "set", 9.0, 100.0),
+                                                            abs=1.5 / dev.sample_rate) for p in sets)
