@@ -350,6 +350,7 @@ def boost_figures(drive: Drive, lp, rel, supply, label, rate: float, thr: tuple[
         t_end = t_slow
         i_end, v_end = runs.end_current, runs.end_boost
         energy = np.where(np.isfinite(runs.energy), runs.energy, 0.0)
+        reachable = reachable if runs.reachable is None else runs.reachable
     k_e, k_i = int(np.argmax(energy)), int(np.argmax(i_end))
     v_top = s.boost * (1.0 + s.boost_tolerance)
     v_sw = _turn_off_voltage(drive, rel, v_top, i_end)

@@ -89,6 +89,9 @@ class BoostRuns:
     most: PullInBatch | None = None
     hold_params: ArmatureParams | None = None
     period: np.ndarray | None = None
+    #: the most current the boost at its lowest drives where it never reaches the trip
+    #: (A per point; ``None``: the still coil's, :func:`coildrive.model.boost` ``highest_current``)
+    reachable: np.ndarray | None = None
 
 
 def boosted_params(drive: Drive, p: ArmatureParams, high: bool) -> ArmatureParams:

@@ -143,8 +143,31 @@ def armature_pulse(wd: Drive, lp, l_factor, label, thr: tuple[float, int, float]
     runs = BoostRuns(slow=first[False], long_time=low[0], low_boost=low[2],
                      fast_time=first[True].trip_time, end_current=np.where(more, low[1], high_[1]),
                      end_boost=np.where(more, low[2], high_[2]), energy=np.fmax(low[3], high_[3]),
-                     duty=np.zeros(len(p)), window=0.0)
+                     duty=np.zeros(len(p)), window=0.0,
+                     reachable=_reachable(boosted_params(wd, p, False), first[False]))
     return ArmaturePulse(np.where(seat_high, seat[True], seat[False]), seat_high, first[False], runs, ends)
+
+
+def _reachable(pb, pin) -> np.ndarray:
+    """A per point: the most current the armature's run from the boost ``pb`` drives where it
+    never reaches its trip (``pin``): seated, the larger of its hump before the seat (the
+    largest at the integrator's accepted steps: the crest between two of them a little
+    higher) and the seated coil's highest from the seat's state on
+    (:func:`coildrive.model.supply.top_from`;
+    an ideal boost's RL rise, ``V_b / R``); at rest on the open stop for ever (or stalled in
+    flight, an estimate there) the open coil's (:func:`coildrive.model.supply.top_current`)."""
+    from ..model import supply as bus_model
+    from ..model.armature import SEATED
+
+    seated = pin.status == SEATED
+    if pb.droops:
+        open_top = bus_model.top_current(pb.bus(True))
+        seat_top = bus_model.top_from(pb.bus(False), np.where(seated, pin.seat_current, 0.0),
+                                      np.where(seated, pin.seat_bus, pb.v_on))
+    else:
+        open_top = pb.v_on / pb.r_on
+        seat_top = np.maximum(np.where(seated, pin.seat_current, 0.0), open_top)
+    return np.where(seated, np.fmax(pin.hump_current, seat_top), open_top)
 
 
 def seats_check(arm: ArmaturePulse, r, label) -> Check:
@@ -161,10 +184,11 @@ def seats_check(arm: ArmaturePulse, r, label) -> Check:
                      "seat -- a larger boost capacitance (supply.boost_capacitance), a higher boost voltage or "
                      "less spring and load")
     seat = (f"the armature rests on the seat {r.seat_time_s * 1e3:.4g} ms after switch-on at the latest "
-            f"({r.seat_corner}), before the current reaches the threshold at every corner (the shortest "
-            "set pulse: the catch then holds it)")
-    return Check("set_armature_seats", r.ticks is not None,
-                 seat if r.ticks is not None else f"{seat}, but the set pulse has no length (see the set_pulse check)")
+            f"({r.seat_corner})")
+    if r.ticks is None:
+        return Check("set_armature_seats", False, f"{seat}, but the set pulse has no length (see the set_pulse check)")
+    return Check("set_armature_seats", True, f"{seat}, before the current reaches the threshold at every corner "
+                 "(the shortest set pulse: the catch then holds it)")
 
 
 def _refuse(wd: Drive, pb, pin, k: int, label, high: bool, i_th: float) -> None:
