@@ -202,8 +202,9 @@ def test_cli_design_simulate_emulate_check_and_monte_carlo(valve, tmp_path):
     # simulate at 9 V, coil 20 degC: the set pulse ends at the first tick whose reading is the
     # code, on the armature's run from the nominal boost (solve_ivp)
     csv = tmp_path / "s.csv"
-    r = run_cli("simulate", str(path), "--supply", "9", "--coil-temp", "20", "--csv", str(csv))
-    assert r.returncode == 0, r.stderr
+    r = run_cli("simulate", str(path), "--supply", "9", "--coil-temp", "20", "--csv", str(csv), "--plot",
+                str(tmp_path / "s.png"))
+    assert r.returncode == 0 and (tmp_path / "s.png").stat().st_size > 0, r.stderr
     w = np.genfromtxt(csv, delimiter=",", names=True)
     rate = drive.board.tick.rate
     t_code = reference(drive, "9 V, coil 20 degC, R nom, L nom", None, nominal_trip(drive, s["boost"]["threshold_code"]),
