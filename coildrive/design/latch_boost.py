@@ -50,10 +50,9 @@ damping's heat and the seat's impact), its remainder.
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
-
-from dataclasses import dataclass
 
 from ..config import Drive
 from ..errors import InputError
@@ -339,9 +338,10 @@ def _sample_armature(wd: Drive, lp, rel, l_factor, b: BoostResult, trip, v_facto
     tolerance ``l_factor`` per point): its run from the sample's boost until the sample's
     chain reads the threshold code (``trip`` A per point), as :func:`armature_pulse`'s.
     The time is the seat's, ``inf`` where the armature is not at rest on the seat by then
-    (the catch would not hold it: ``set_not_seated``); the end current, the energy and the
-    decay as without it, the longest pulse's on the seated coil's closed form
-    (:func:`~coildrive.model.armature_boost.seated_on`)."""
+    (the catch would not hold it: ``set_not_seated``); the end current as without it; the
+    energy and the decay of the longest pulse on the seated coil's closed form
+    (:func:`~coildrive.model.armature_boost.seated_on`) where it is seated (NaN elsewhere,
+    and where the pulse times out: not modelled)."""
     from ..model.armature import SEATED, params_from_loop
     from ..model.armature_boost import boost_energy, boost_params, seated_on
     from ..model.armature_runs import pull_in
@@ -353,10 +353,11 @@ def _sample_armature(wd: Drive, lp, rel, l_factor, b: BoostResult, trip, v_facto
     seated = (pin.status == SEATED) & np.isfinite(pin.trip_time)
     timeout = b.timeout_s or 0.0
     hit = np.isfinite(pin.trip_time) & (pin.trip_time <= timeout)
-    y = seated_on(pb, np.where(hit, pin.trip_state, 0.0), np.where(hit, np.minimum(late(wd), timeout - pin.trip_time),
-                                                                    0.0))
-    i_top = np.where(hit, pb.current(y[0], 0.0), np.nan)   # (never there in time: a time-out, not modelled)
-    return (np.where(seated, pin.seat_time, np.inf), np.where(hit, trip, np.nan), np.where(hit, boost_energy(pb, y),
-                                                                                          np.nan),
-            decay_time(0.0, i_top, rel.r_off, rel.v_off, lp.inductance), ~hit)
+    on = hit & seated   # the longest pulse on the seat: its tick (or what is left to the time-out)
+    y = seated_on(pb, np.where(on, pin.trip_state, 0.0), np.where(on, np.minimum(late(wd), timeout - pin.trip_time),
+                                                                  0.0))
+    i_top = np.where(on, pb.current(y[0], 0.0), np.nan)
+    return (np.where(seated, pin.seat_time, np.inf), np.where(hit, trip, np.nan),
+            np.where(on, boost_energy(pb, y), np.nan), decay_time(0.0, i_top, rel.r_off, rel.v_off, lp.inductance),
+            ~hit)
 
