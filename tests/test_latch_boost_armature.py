@@ -3,9 +3,9 @@
 capacitor until the current reaches its threshold, the armature at rest on the seat by then
 (coildrive/design/latch_boost.py, ``armature_pulse``).
 
-The scenario: the bundled shut-off valve (examples/latching/shutoff-valve-boost-reset-
-winding-12v.toml) with an invented plunger under its set winding ([armature] below) and a
-set threshold of 2 x 0.8 A (a lower one comes while the plunger is still in flight).
+The scenario (invented): the plunger valve of examples/latching/plunger-valve-boost-reset-
+winding-12v.toml, its set threshold 2 x 0.8 A (at 1.2 x, the current gets there while the
+plunger is still in flight: refused).
 
 Outside reference: scipy's ``solve_ivp`` (DOP853, rtol 1e-11) of the set winding's circuit,
 the plunger and the boost capacitor written afresh here in the current (nothing of
@@ -40,33 +40,23 @@ from test_reference_ngspice_latch import _corner   # a corner's label -> (V, deg
 from coildrive.config import load_drive
 from coildrive.design.latch import design_latch
 
-VALVE = EXAMPLES / "latching" / "shutoff-valve-boost-reset-winding-12v.toml"
-PLUNGER = """[armature]
-inductance_open = "12 mH"
-inductance_closed = "20 mH"
-stroke = "0.3 mm"
-mass = "1 g"
-spring_preload = "1 N"
-spring_rate = "1000 N/m"
-load_force = "0.2 N"
-damping = "0.5 N*s/m"
-
-[freewheel]"""
+VALVE = EXAMPLES / "latching" / "plunger-valve-boost-reset-winding-12v.toml"
 
 
 def plunger_valve(tmp_path, margin: float = 2.0):
-    text = VALVE.read_text().replace("[freewheel]", PLUNGER, 1).replace(
-        "current_margin = 1.2         # its threshold: 1.2 x 0.8 A", f"current_margin = {margin:g}", 1)
+    """The example with the set threshold at ``margin`` x its current."""
+    text = VALVE.read_text()
+    old = "current_margin = 2           # its threshold"
+    assert old in text
     path = tmp_path / "plunger-valve.toml"
-    path.write_text(text)
+    path.write_text(text.replace(old, f"current_margin = {margin:g}  # its threshold", 1))
     return path
 
 
 @pytest.fixture(scope="module")
-def valve(tmp_path_factory):
-    path = plunger_valve(tmp_path_factory.mktemp("latch-boost-arm"))
-    drive = load_drive(path)
-    return path, drive, design_latch(drive)
+def valve():
+    drive = load_drive(VALVE)
+    return VALVE, drive, design_latch(drive)
 
 
 def reference(drive, corner: str, high: bool | None, trip: float, late: float) -> dict:
