@@ -10,7 +10,8 @@ pulse; ``docs/protocol.md``) to OFF, then the decay to zero. Per pulse:
   capacitor on a drooping bus: :func:`coildrive.design.latch.rise_current_at`) with the
   design's R and L at the capture's supply and coil temperature (the operating point of
   :func:`coildrive.bench.check.operating_point`; with a moving armature the set pulse's
-  current follows it onto the seat, :func:`coildrive.design.latch.seat_run`), band
+  current follows it onto the seat, :func:`coildrive.design.latch.seat_run`, from the
+  boost its run from the capacitor), band
   ``Tolerances.pulse_current``
   widened to two ADC codes plus the rise of one sample period. A reading at the ADC's
   full scale is not a measurement (left out; the row is ``n/a`` when every one is);
@@ -140,7 +141,9 @@ def predict_pulse(design, name: str, supply: float, coil_temp: float, zero_curre
     lp = loop(wd, np.array([supply]), np.array([coil_temp]), 1.0, 1.0)
     rel = loop(wd, np.array([supply]), np.array([coil_temp]), 1.0, 1.0, path="release")
     v_on = float(lp.v_on[0])
-    if wd.supply.boosted:   # from the boost capacitor (model.boost): its voltage drives the end slope
+    if wd.supply.boosted and wd.armature is not None:   # the armature's run from the boost onto the seat
+        i_end, v_on = _seated_boost_end(wd, length, supply, coil_temp)
+    elif wd.supply.boosted:   # from the boost capacitor (model.boost): its voltage drives the end slope
         from ..model import boost as boost_model
         from ..model.latch_waveform import boost_of
         b = boost_of(wd, float(lp.r_on[0]), lp.inductance)
@@ -209,6 +212,20 @@ def _seated_end(wd, lp, t_pulse: float, supply: float, coil_temp: float) -> floa
         raise InputError(wd.source, "armature", f"at {supply:g} V with the coil at {coil_temp:g} degC the "
                          "armature is not on the seat when the set pulse ends: no end current to check")
     return float(pin.peak_end_current[0])
+
+
+def _seated_boost_end(wd, t_pulse: float, supply: float, coil_temp: float) -> tuple[float, float]:
+    """``(A, V)``: the set pulse's current and the top of the coil (the boost capacitor less
+    its path's drop) at its end, with a moving armature from the boost
+    (:func:`coildrive.model.latch_waveform.pulse`: the armature's run from the capacitor);
+    one line where it is not on the seat by then."""
+    from ..model.latch_waveform import NotSeated, pulse
+
+    try:
+        _, i, on, top, *_ = pulse(wd, supply, coil_temp, 1.0, 1.0, t_pulse, 200)
+    except NotSeated as err:
+        raise InputError(wd.source, "armature", f"{err}: no end current to check") from None
+    return float(i[on == 1][-1]), float(top[on == 1][-1])
 
 
 def check_latch_capture(capture: Capture, design, tolerances: Tolerances | None = None,

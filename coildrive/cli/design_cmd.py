@@ -152,7 +152,8 @@ def _simulate_latch(drive, v: float, t: float, csv: Path, r_factor: float, l_fac
     if plot is not None:
         from ..design.latch_plot import plot_latch_actuation
         write_atomic(plot, plot_latch_actuation(d, w, f"{drive.name} on {drive.board.name}: simulated at "
-                                                f"{v:g} V, coil {t:g} degC, R x{r_factor:g}, L x{l_factor:g}"))
+                                                f"{v:g} V, coil {t:g} degC, R x{r_factor:g}, L x{l_factor:g}",
+                                                length))
         status(f"wrote plot {plot}")
 
 

@@ -111,16 +111,25 @@ def firmware_peak(design, supply: float, coil_temp: float, r_factor: float = 1.0
     s = drive.supply
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
     if drive.armature is not None:   # the moving armature's run from the boost at its nominal
-        from ..model.armature import params_from_loop
-        from ..model.armature_boost import boost_params
-        from ..model.armature_runs import pull_in
-        pb = boost_params(params_from_loop(drive.armature, lp, l_factor), s.boost, s.boost_capacitance,
-                          s.boost_resistance)
-        t = float(pull_in(pb, trip=nominal_trip(drive)).trip_time[0])
-        return min(t, design.pull_in.peak_time_s or 0.0)
+        return min(armature_trip_time(drive, lp, l_factor, nominal_trip(drive)), design.pull_in.peak_time_s or 0.0)
     b = at_boost(drive, s.boost, s.boost_capacitance, lp.r_on, lp.inductance)
     t = float(model.of(b).threshold_time(nominal_trip(drive), b, sensed=True))
     return min(t, design.pull_in.peak_time_s or 0.0)
+
+
+def armature_trip_time(drive: Drive, lp, l_factor: float, trip: float) -> float:
+    """s from switch-on until the coil's current first reaches ``trip`` A with the moving
+    armature, from the boost at its nominal charge and capacitance, at the one point of
+    ``lp`` (``inf`` never): :func:`coildrive.model.armature_runs.pull_in` with the boost as
+    its source (:func:`coildrive.model.armature_boost.boost_params`)."""
+    from ..model.armature import params_from_loop
+    from ..model.armature_boost import boost_params
+    from ..model.armature_runs import pull_in
+
+    s = drive.supply
+    pb = boost_params(params_from_loop(drive.armature, lp, l_factor), s.boost, s.boost_capacitance,
+                      s.boost_resistance)
+    return float(pull_in(pb, trip=trip).trip_time[0])
 
 
 def peak_in_force(design, supply: float, coil_temp: float, r_factor: float = 1.0,
@@ -342,6 +351,7 @@ def boost_figures(drive: Drive, lp, rel, supply, label, rate: float, thr: tuple[
         t_end = t_slow
         i_end, v_end = runs.end_current, runs.end_boost
         energy = np.where(np.isfinite(runs.energy), runs.energy, 0.0)
+        reachable = reachable if runs.reachable is None else runs.reachable
     k_e, k_i = int(np.argmax(energy)), int(np.argmax(i_end))
     v_top = s.boost * (1.0 + s.boost_tolerance)
     v_sw = _turn_off_voltage(drive, rel, v_top, i_end)

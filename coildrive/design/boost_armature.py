@@ -89,9 +89,15 @@ class BoostRuns:
     most: PullInBatch | None = None
     hold_params: ArmatureParams | None = None
     period: np.ndarray | None = None
+    #: the most current the boost at its lowest drives where it never reaches the trip
+    #: (A per point; ``None``: the still coil's, :func:`coildrive.model.boost` ``highest_current``)
+    reachable: np.ndarray | None = None
 
 
-def _boost(drive: Drive, p: ArmatureParams, high: bool) -> ArmatureParams:
+def boosted_params(drive: Drive, p: ArmatureParams, high: bool) -> ArmatureParams:
+    """``p`` with the boost as its source (:func:`~coildrive.model.armature_boost.boost_params`)
+    at its lowest (voltage and capacitance less their tolerances) or, with ``high``, its
+    highest."""
     s = drive.supply
     sign = 1.0 if high else -1.0
     return boost_params(p, s.boost * (1.0 + sign * s.boost_tolerance),
@@ -150,7 +156,7 @@ def runs(drive: Drive, p: ArmatureParams, duty, period, i_top, thresholds: tuple
     the most current the hold draws from the bus (A per point; with an eddy term the
     terminal current's top, which steps above ``i_top`` at each switch-on), default ``i_top``."""
     i_th, i_trip = thresholds
-    low, high = _boost(drive, p, False), _boost(drive, p, True)
+    low, high = boosted_params(drive, p, False), boosted_params(drive, p, True)
     long_time, _, low_boost, energy_low = _end(drive, low, pull_in(low, trip=i_trip), i_trip)
     finite = long_time[np.isfinite(long_time)]
     until = drive.pull_in.margin * (float(np.max(finite)) if finite.size else 0.0)
@@ -234,7 +240,7 @@ def peak_heat(drive: Drive, lp, peak_time) -> np.ndarray:
     t_out = np.ravel(np.broadcast_to(np.asarray(peak_time, float), shape))
     heat = np.zeros(len(p))
     for high in (False, True):
-        pb = _boost(drive, p, high)
+        pb = boosted_params(drive, p, high)
         pin = pull_in(pb, trip=i_trip)
         _, i_end, _, _ = _end(drive, pb, pin, i_trip)
         hit = np.isfinite(pin.trip_time)
@@ -375,7 +381,7 @@ def loop_pull_in(drive: Drive, res, loop, counts: int, reading, switch_leg: bool
                           switch_leg, 2**b.adc.bits - 1)
     i_th, code, _ = threshold(drive)
     period = np.ravel(np.broadcast_to(np.asarray(res.hold.period, float), (len(arm.params),)))[late]
-    got = boosted_pull_in(_boost(drive, p, False), p, i_th, control.first(code), period, runs_.window,
+    got = boosted_pull_in(boosted_params(drive, p, False), p, i_th, control.first(code), period, runs_.window,
                           rtol=1e-7, control=control)
     fields = ("status", "seat_time", "seat_current", "impact_time", "impact_speed", "dip_current",
               "dip_time", "stall_gap", "bound", "bounces", "steps")

@@ -324,7 +324,7 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     scale = 1.0 - lt.recharge_tolerance if droops and not drive.supply.boosted else 1.0
     pts = _points(drive, coil, scale)
     if drive.supply.boosted:
-        return _boosted(wd, pts, name, winding, switches, current, margin, cm)
+        return _boosted(drive, wd, pts, name, winding, switches, current, margin, cm)
     lp, t_req, t_force, pin, p_arm = _requirements(wd, pts, current, cm)
     ticks, by_time, by_force = requirement(drive, t_req, t_force, margin, settle)
     rate = drive.board.tick.rate
@@ -563,19 +563,28 @@ def _bus_check(drive: Drive, name: str, bus_top, pts: Points) -> Check:
                  + ("" if ok else " -- a higher-rated or larger capacitor, a lower source resistance"))
 
 
-def _boosted(wd: Drive, pts: Points, name: str, winding: str, switches: str, current: float,
+def _boosted(drive: Drive, wd: Drive, pts: Points, name: str, winding: str, switches: str, current: float,
              margin: float, cm: float) -> tuple[PulseResult, list[Check]]:
-    """A pulse from the boost, ending at its threshold (:mod:`coildrive.design.latch_boost`):
-    ``ticks`` is its time-out, ``shortest_s`` the fastest time to the threshold,
-    ``end_current_a`` the threshold (the least any pulse ends at), the energies from the
-    boost, and the switch voltage from the boost at full charge."""
+    """A pulse from the boost through the winding ``wd`` (of ``drive``), ending at its
+    threshold (:mod:`coildrive.design.latch_boost`): ``ticks`` is its time-out,
+    ``shortest_s`` the fastest time to the threshold, ``end_current_a`` the threshold (the
+    least any pulse ends at), the energies from the boost, and the switch voltage from the
+    boost at full charge. With a moving armature the set pulse's ``worst_time_s`` is its
+    latest seat (:func:`coildrive.design.latch_boost.armature_pulse`), and the reset
+    pulse's catch trips at its current (:func:`_opens`)."""
     lp, rel = pulse_loop(wd, pts), release_loop(wd, pts)
-    b = latch_boost.pulse_figures(wd, lp, rel, pts.supply, pts.label, current, cm, margin)
-    e = latch_boost.energies(wd, lp, rel, pts.sense_factor, b)
+    arm = (latch_boost.armature_pulse(wd, lp, pts.l_factor, pts.label, latch_boost.pulse_threshold(wd, current, cm))
+           if wd.armature is not None else None)   # the set pulse seats the armature
+    b = latch_boost.pulse_figures(wd, lp, rel, pts.supply, pts.label, current, cm, margin,
+                                  None if arm is None else arm.runs)
+    e = latch_boost.energies(wd, lp, rel, pts.sense_factor, b, None if arm is None else arm.ends)
     if full_bridge(wd):   # the release back into the boost capacitor
         b = latch_boost.bridge_figures(wd, b, e)
-    t_req = boost_rise_time(wd, lp, current, lp.inductance)
+    t_req = boost_rise_time(wd, lp, current, lp.inductance) if arm is None else arm.seat_time
     k_req = worst(t_req)
+    seat_at = None if arm is None else pts.label(k_req) + (", the boost at its highest" if arm.seat_high[k_req]
+                                                           else ", the boost at its lowest")
+    force_coil = lp.inductance if arm is None else open_inductance(wd, pts.l_factor)
     reached = b.time_to_threshold_s is not None
     not_reached = None if reached else (
         f"not reached: the boost at its lowest drives at most {b.reachable_current_a:.4g} A < "
@@ -588,7 +597,7 @@ def _boosted(wd: Drive, pts: Points, name: str, winding: str, switches: str, cur
         margin=margin, current_margin=cm, settle_time_s=0.0, ticks=b.timeout_ticks,
         time_s=b.timeout_s or 0.0, shortest_s=b.fastest_time_s if reached else 0.0,
         worst_time_s=float(t_req[k_req]), worst_corner=pts.label(k_req), force_current_a=cm * current,
-        force_time_s=float(np.max(boost_rise_time(wd, lp, cm * current, lp.inductance))),
+        force_time_s=float(np.max(boost_rise_time(wd, lp, cm * current, force_coil))),
         governed_by="current threshold" if reached else "", end_current_a=b.threshold_a if reached else 0.0,
         not_reached=not_reached, supply_j=e["supply_j"], copper_j=e["copper_j"],
         switch_sense_j=e["switch_sense_j"], freewheel_j=e["freewheel_j"], returned_j=e["returned_j"],
@@ -597,9 +606,15 @@ def _boosted(wd: Drive, pts: Points, name: str, winding: str, switches: str, cur
                                                                    else ", the boost at its lowest"),
         decay_time_s=e["decay_time_s"], peak_switch_voltage_v=b.switch_voltage_v,
         switch_voltage_corner=b.switch_voltage_corner + ", from the boost at full charge", droop_v=0.0,
-        recharge_time_s=0.0, recharge_corner="", lowest_node_v=node, boost=b)
+        recharge_time_s=0.0, recharge_corner="", lowest_node_v=node, boost=b, armature_j=e["armature_j"],
+        seat_time_s=None if arm is None else float(t_req[k_req]), seat_corner=seat_at or "")
     limit = wd.switch.max_voltage * wd.switch.derating
     out = latch_boost.checks(name, b, wd)
+    if arm is not None:
+        out.append(latch_boost.seats_check(arm, result, pts.label))
+    elif name == "reset" and drive.armature is not None:   # the catch trips: spring and load open it
+        result, check = _opens(drive, pts, t_req, result)
+        out.append(check)
     out.append(Check(f"{name}_switch_voltage", b.switch_voltage_v <= limit,
                      f"turning off up to {b.end_current_max_a:.4g} A from the boost at full charge, the "
                      f"switch sees up to {b.switch_voltage_v:.4g} V at the end of the {name} pulse "

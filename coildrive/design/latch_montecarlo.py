@@ -75,7 +75,7 @@ def _boost_figures(wd: Drive, pts: Points, p, v_factor, c_factor) -> tuple:
     """The :data:`FIGURES` of a pulse from the boost at the points and whether it timed out
     (:func:`coildrive.design.latch_boost.sample_figures`)."""
     return latch_boost.sample_figures(wd, pulse_loop(wd, pts), release_loop(wd, pts), pts.sense_factor, p.boost,
-                                      p.current_a, v_factor, c_factor)
+                                      p.current_a, v_factor, c_factor, pts.l_factor)
 
 
 def with_monte_carlo(d: LatchDesign, samples: int, seed: int = 1) -> LatchDesign:
@@ -131,6 +131,7 @@ def latch_monte_carlo(d: LatchDesign, samples: int, seed: int = 1, chunk: int = 
         out["failures"][f"{p.name}_below_margin"] = int(np.sum(~(end >= p.current_margin * p.current_a)))
         if boosted:
             out["failures"][f"{p.name}_timed_out"] = int(np.sum(timed_out)) if p.ticks is not None else samples
-        if wd.armature is not None:
-            out["failures"][f"{p.name}_not_seated"] = int(np.sum(~(figs["time_to_current_s"] <= short)))
+        if wd.armature is not None:   # (from the boost: the seat's time is inf where not seated by the trip)
+            out["failures"][f"{p.name}_not_seated"] = int(np.sum(~(figs["time_to_current_s"] <= short) if not boosted
+                                                             else ~np.isfinite(figs["time_to_current_s"])))
     return out

@@ -41,11 +41,13 @@ def plot_latch(d: LatchDesign, waveforms: dict) -> bytes:
     return png_bytes(fig)
 
 
-def plot_latch_actuation(d: LatchDesign, w, title: str) -> bytes:
+def plot_latch_actuation(d: LatchDesign, w, title: str, lengths: dict | None = None) -> bytes:
     """PNG bytes of one simulated set-and-reset cycle ``w`` (a LatchWaveform,
     ``coildrive simulate --plot``): the coil current (each winding's, or the signed current
     of a bridge) with both pulses marked, the switches' on/off states, and with a moving
-    armature its gap (mm) through the set pulse."""
+    armature its gap (mm) through the set pulse. ``lengths``: each pulse's length (s, by
+    name) as ``w`` runs it (a compensated pulse's entry, a pulse from the boost to its
+    threshold there), else the design's ``time_s``."""
     moving = w.gap is not None
     fig = agg_figure(figsize=(9, 7.5 if moving else 6), dpi=110)
     ratios = [3, 1.4, 2] if moving else [3, 1.4]
@@ -59,12 +61,13 @@ def plot_latch_actuation(d: LatchDesign, w, title: str) -> bytes:
     if two:
         ax.plot(t_ms, cols["reset_current_a"], lw=0.9, color="tab:red", label="reset winding current")
     by = {p.name: p for p in d.latch.pulses}
+    length = {name: p.time_s for name, p in by.items()} if lengths is None else lengths
     sign = -1.0 if not two else 1.0   # a bridge's reset current is negative
     for name, colour in (("set", "tab:orange"), ("reset", "tab:purple")):
         p = by[name]
         t0 = ev[name] * 1e3
-        ax.axvspan(t0, t0 + p.time_s * 1e3, color=colour, alpha=0.15,
-                   label=f"{name} pulse {p.time_s * 1e3:.4g} ms")
+        ax.axvspan(t0, t0 + length[name] * 1e3, color=colour, alpha=0.15,
+                   label=f"{name} pulse {length[name] * 1e3:.4g} ms")
         level = p.current_a * (sign if name == "reset" else 1.0)
         ax.axhline(level, color="0.4", ls="--", lw=0.8)
         ax.text(t_ms[0], level, f" {name} current", va="bottom", fontsize=8)
@@ -72,10 +75,10 @@ def plot_latch_actuation(d: LatchDesign, w, title: str) -> bytes:
     ax.set_title(title, fontsize=9)
     ax.grid(alpha=0.3)
     ax.legend(fontsize=7, loc="upper right")
-    # the switch states: on from each pulse's start for its length (the design's pulses)
+    # the switch states: on from each pulse's start for its length
     for k, name in enumerate(("set", "reset")):
         p = by[name]
-        on = (w.time >= ev[name]) & (w.time < ev[name] + p.time_s)
+        on = (w.time >= ev[name]) & (w.time < ev[name] + length[name])
         ax_s.step(t_ms, 1.5 * k + on.astype(float), where="post", lw=0.9, label=p.switches)
     ax_s.set_yticks([0, 1, 1.5, 2.5], ["off", "on", "off", "on"], fontsize=7)
     ax_s.set_ylabel("switches")

@@ -419,6 +419,31 @@ def window_flight(p: ArmatureParams, pin: PullInBatch, dt: float, rtol: float = 
     return flown, np.maximum(peak[0], p.current(y[0], y[1])), t, y
 
 
+def seated_on(p: ArmatureParams, y, dt) -> np.ndarray:
+    """The run's state (rows: lambda, x, v, q, sq and, from a capacitor, its u) ``dt`` s on
+    from ``y`` with the armature at rest on the seat and the switch on: the seated coil's
+    closed form (:func:`coildrive.model.supply.state_from` and
+    :func:`~coildrive.model.supply.integrals_from` from the boost capacitor, the RL rise
+    from an ideal boost; ``q`` and ``sq`` accumulated). A linear coil without an eddy term:
+    a latching coil's set pulse from the boost, seated at its threshold, on for the tick
+    until the driver sees it (:mod:`coildrive.design.latch_boost`)."""
+    from .rl import rise_current, rise_integrals
+
+    y = np.asarray(y, float)
+    dt = np.broadcast_to(np.asarray(dt, float), y[0].shape)
+    i0 = p.current(y[0], 0.0)
+    if p.droops:
+        b = p.bus(False)
+        q, sq = bus_model.integrals_from(dt, b, i0, y[5])
+        i, u = bus_model.state_from(dt, b, i0, y[5])
+        extra = [u]
+    else:
+        q, sq = rise_integrals(dt, i0, p.v_on, p.r_on, p.coil_closed)
+        i, extra = rise_current(dt, i0, p.v_on, p.r_on, p.coil_closed), []
+    zero = np.zeros(np.shape(i))
+    return np.stack([p.flux_closed(i), zero, zero, y[3] + q, y[4] + sq] + extra)
+
+
 def seated_in_peak(pin: PullInBatch) -> np.ndarray:
     """Where the armature of a :func:`boosted_pull_in` rests on the seat by the end of the
     peak (the threshold), as opposed to in the hold."""

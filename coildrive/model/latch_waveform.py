@@ -24,12 +24,13 @@ freewheel path).
 From the boost (``[supply] boost``, two windings or a full bridge): each pulse's on-time
 is the boost capacitor's series RLC discharge into the winding (:mod:`coildrive.model.boost`,
 at its nominal charge and capacitance; a flux-linkage curve's or an eddy term's by
-:mod:`coildrive.model.flux_boost`, the current then the terminal one), the top of the
-coil the capacitor less ``R_b i``; after the pulse the winding's freewheel path returns
-its current to the top, which the main supply holds (the boost switch is off). On a full
-bridge the boost switch feeds the high-side rail and the fast decay returns up its body
-diode into the boost capacitor (:func:`coildrive.model.bridge.boost_return`): the rail is
-the capacitor + ``V_d + R_b i`` then. A ``boost_v`` column is the capacitor through both
+:mod:`coildrive.model.flux_boost`, the current then the terminal one; with a moving
+armature the set pulse's run from it, the capacitor a state), the top of the coil the
+capacitor less ``R_b i``; after the pulse the winding's freewheel path returns its current
+to the top, which the main supply holds (the boost switch is off). On a full bridge the
+boost switch feeds the high-side rail and the fast decay returns up its body diode into
+the boost capacitor (:func:`coildrive.model.bridge.boost_return`): the rail is the
+capacitor + ``V_d + R_b i`` then. A ``boost_v`` column is the capacitor through both
 pulses, recharged at ``boost_power`` after each. On a drooping main supply a
 ``main_bus_v`` column is the main bus (:mod:`coildrive.model.converter_bus`: the
 converter draws ``boost_power / boost_efficiency`` from it while it recharges), which
@@ -218,7 +219,8 @@ def boost_of(drive: Drive, r_on: float, inductance):
 
 
 def _boost_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float, r_factor: float,
-                  l_factor: float, time, set_time: float, reset_time: float, gap: float) -> np.ndarray:
+                  l_factor: float, time, set_time: float, reset_time: float, gap: float,
+                  seating=None) -> np.ndarray:
     """The boost capacitor (V) through both pulses: each pulse draws it down from full
     charge, then the converter recharges it at ``boost_power``
     (:func:`coildrive.model.boost.voltage_trace`); the reset pulse starts from full charge
@@ -226,12 +228,23 @@ def _boost_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp: fl
     each pulse (:func:`coildrive.model.bridge.boost_return`): the converter's charge from
     the pulse's end is added in energy, ``v^2 = v_r^2 + 2 P (t - t_end) / C`` up to ``V_b``
     (``v_r`` the return's capacitor; their coupling in the decay left out, as the design's
-    recharge of the net energy does)."""
+    recharge of the net energy does). ``seating``: with a moving armature the set
+    pulse's ``(t, i, on, top of the coil)`` (:func:`pulse`): its capacitor is the run's
+    (the top plus ``R_b i``), then the same recharge
+    (:func:`coildrive.model.boost.recharge_voltage`)."""
     out = []
     for wd, start, length, part in ((drive, 0.0, set_time, time < gap), (reset_drive, gap, reset_time, time >= gap)):
         lp = loop(wd, supply, coil_temp, r_factor, l_factor)
-        b = boost_of(wd, float(lp.r_on), lp.inductance)
-        trace = boost_model.voltage_trace(time - start, length, b, wd.supply.boost_power)
+        if seating is not None and wd is drive:
+            t_p, i_p, on_p, top = seating
+            run_t, v_c = t_p[on_p == 1], (top + wd.supply.boost_resistance * i_p)[on_p == 1]
+            dt = time - start
+            after = boost_model.recharge_voltage(float(v_c[-1]), np.maximum(dt - length, 0.0),
+                                                 wd.supply.boost_capacitance, wd.supply.boost_power, wd.supply.boost)
+            trace = np.where(dt <= length, np.interp(dt, run_t, v_c), after)
+        else:
+            b = boost_of(wd, float(lp.r_on), lp.inductance)
+            trace = boost_model.voltage_trace(time - start, length, b, wd.supply.boost_power)
         if full_bridge(wd):
             rel = loop(wd, supply, coil_temp, r_factor, l_factor, path="release")
             i_end, v_end = (float(x) for x in boost_model.state(length, b))
@@ -272,7 +285,8 @@ def _seating(drive: Drive, lp, l_factor: float, t_pulse: float, points: int, sup
              coil_temp: float):
     """The set pulse with a moving armature (:func:`coildrive.model.armature_sim.simulate`
     from rest at the open stop; on a drooping bus from a full capacitor, a state of the
-    run): ``(t, i, gap, bus)``. The armature must rest on the seat when the pulse ends (the
+    run; from the boost its capacitor at full charge, ``bus`` the top of the coil):
+    ``(t, i, gap, bus)``. The armature must rest on the seat when the pulse ends (the
     catch then holds it, and the decay is the seated coil's); :class:`NotSeated` otherwise.
     With an eddy term ``i`` is the magnetising current (the branch behind the loop's
     Thevenin pair)."""
@@ -281,14 +295,20 @@ def _seating(drive: Drive, lp, l_factor: float, t_pulse: float, points: int, sup
 
     s = drive.supply
     bus = (s.source_resistance, s.capacitance) if s.droops else (0.0, 0.0)
-    tr = simulate(params_from_loop(drive.armature, lp, l_factor, drive.coil.eddy_resistance, bus=bus),
-                  [(t_pulse, True, points)], points=points)
+    p = params_from_loop(drive.armature, lp, l_factor, drive.coil.eddy_resistance, bus=bus)
+    if s.boosted:   # from the boost (its capacitor a state with no source behind it)
+        from .armature_boost import boost_params
+        p = boost_params(p, s.boost, s.boost_capacitance, s.boost_resistance)
+    tr = simulate(p, [(t_pulse, True, points)], points=points)
     if tr.state != "seated":
         raise NotSeated(f"the armature is not on the seat when the set pulse ends at {supply:g} V, coil "
                          f"{coil_temp:g} degC, so the catch would not hold it")
     # (with an eddy term the magnetising current: pulse() turns it into the terminal current)
     i = tr.current if tr.magnetising_current is None else tr.magnetising_current
-    return tr.time, i, tr.position, (np.full(tr.time.shape, float(lp.v_on)) if tr.bus is None else tr.bus)
+    if tr.bus is None:   # a stiff bus (an ideal boost: its voltage)
+        return tr.time, i, tr.position, np.full(tr.time.shape, float(p.v_on[0]))
+    # from the boost: the top of the coil is the capacitor less the boost path's drop
+    return tr.time, i, tr.position, (tr.bus - s.boost_resistance * i if s.boosted else tr.bus)
 
 
 def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float,
@@ -326,7 +346,8 @@ def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: 
                                      "reset_coil_voltage_v", "switch_voltage_v", "reset_switch_voltage_v")}
     if drive.supply.boosted:
         cols["boost_v"] = _boost_column(drive, reset_drive, supply, coil_temp, r_factor, l_factor, time,
-                                        set_time, reset_time, gap)
+                                        set_time, reset_time, gap,
+                                        None if gap_s is None else (ts, is_, ons, buses))
     if drive.supply.boosted and drive.supply.droops and not full_bridge(drive):
         main = _main_bus_column(drive, reset_drive, supply, coil_temp, r_factor, l_factor, time, set_time,
                                 reset_time, gap)

@@ -182,6 +182,18 @@ def top_current(b: Bus) -> np.ndarray:
     return np.where(np.isfinite(top), state(np.where(np.isfinite(top), top, 0.0), b)[0], b.i_ss)
 
 
+def top_from(b: Bus, i0, v0) -> np.ndarray:
+    """The most current (A) from ``(i0 A, v0 V)`` on, the switch on: ``i0`` itself, or a
+    maximum at one of the first two zeros of ``di/dt`` (a damped pair's later maxima are
+    lower), or ``i_ss`` approached for ever where there is none (the largest of these)."""
+    t1, t2, _ = _slope_zeros(b, i0, v0, 0)
+    top = np.maximum(np.asarray(i0, float), np.where(np.isfinite(t1), -np.inf, b.i_ss))
+    for t in (t1, t2):
+        ok = np.isfinite(t)
+        top = np.where(ok, np.maximum(top, state_from(np.where(ok, t, 0.0), b, i0, v0)[0]), top)
+    return top
+
+
 def current(t, b: Bus) -> np.ndarray:
     """Coil current (A) at ``t`` s after switch-on."""
     return state(t, b)[0]
