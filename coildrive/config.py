@@ -1415,48 +1415,6 @@ def resolve_board(spec: str, relative_to: Path | None = None) -> Path:
                      "and no such file")
 
 
-def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
-                 armature: Armature | None, hold: Hold) -> None:
-    """What the drooping bus (``supply.source_resistance``) is modelled with: a linear coil
-    or a flux-linkage curve, either with an eddy-current term (a curve with one:
-    :func:`coildrive.model.flux_bus.bus`), one switch (low or high side) or a full bridge
-    (a slow-decay hold: voltage mode, fixed or supply table, current mode or the closed
-    loop; every turn-off's fast decay into the bus is :mod:`coildrive.model.bus_decay`,
-    with a curve :mod:`coildrive.model.flux_bus_decay`, on a supply that cannot sink with
-    the feed blocking, with an eddy term too: :mod:`coildrive.design.bridge_bus`; its
-    mixed-decay hold, whose every off-time returns current into the bus, with a linear
-    coil or a flux-linkage curve, either with an eddy term, and no armature: on a supply
-    that sinks the bus's rise bounded by
-    :func:`coildrive.model.bus_decay.mixed_hold_rise`, on one that cannot by the coil's top
-    energy, :func:`coildrive.model.bus_decay.no_sink_energy_top`). A latching coil
-    on one switch, with a moving armature too (the set pulse's seat run carries the
-    capacitor, linear or on its two curves, an eddy term too:
-    :func:`coildrive.design.latch.seat_run`), or on a full bridge with a linear coil, a
-    flux-linkage curve or an eddy term (linear or on a curve), on a supply that sinks or
-    not (each pulse's fast decay into the bus: :func:`coildrive.design.latch.bus_decays`;
-    a curve's run into the capacitor alone traced in time by
-    :func:`coildrive.model.bridge.flux_pump_trace`). Any hold
-    (the droop is the peak's; a regulated hold takes it out of the hold) and any freewheel
-    path (a clamp's release, which draws from the bus, is computed on the undrooped bus:
-    the safe side). A moving armature: a linear coil or its open and seated curves (an
-    eddy term, curves, or both), one switch, a voltage-mode (fixed, supply-table or
-    closed-loop) or current-mode hold (the pull-in run carries the capacitor,
-    :mod:`coildrive.model.armature_runs`; the hold is regulated on the stiff bus). Anything
-    else is refused in one line rather than designed on a stiff bus. A moving armature on a
-    full bridge: a linear coil or its open and seated curves, either with an eddy term (a
-    supply that sinks or not), a voltage-mode or current-mode hold; its release is the fast
-    decay into the bus with the armature letting go, the capacitor a state of the run (with
-    an eddy term the magnetising branch behind the loop's Thevenin pair, the diodes blocking
-    at the terminal current's zero: :mod:`coildrive.model.armature_bus_release`)."""
-    if not supply.droops:
-        return
-    if switch.topology == "full_bridge" and hold.fast_fraction > 0 and armature is not None:
-        raise InputError(source, "hold.fast_fraction", "the drooping bus (supply.source_resistance) is not "
-                         "modelled with a full bridge's mixed-decay hold with an [armature]: expected "
-                         "source_resistance left out, or one switch (a full bridge: a slow-decay "
-                         "peak-and-hold, a mixed decay without an [armature] or a latching coil)")
-
-
 def _read_boost(s: "_Section") -> tuple:
     """The ``[supply]`` boost keys, in :class:`Supply`'s order (all 0 without ``boost``)."""
     boost = s.quantity("boost", "voltage", 0.0, nonnegative=True)
@@ -1889,7 +1847,6 @@ def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_
     merged, origins = _merged(brd.source, fw_board, source, fw_drive)
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
     _check_bridge(source, origins, switch, freewheel, supply, hold, coil)
-    _check_droop(source, coil, switch, supply, armature, hold)
     _check_boost(source, origins, coil, switch, freewheel, supply, hold, pull_in, armature, duty, latch)
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:
         raise InputError(origins.get("clamp_voltage", source), "freewheel.clamp_voltage",
