@@ -1480,8 +1480,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
     mode), a peak that ends at its threshold. A moving armature
     (:mod:`coildrive.model.armature_boost`): a linear coil (an eddy term too), a
-    voltage-mode hold (fixed or supply table; on a full bridge slow decay, no mixed decay;
-    or the closed loop, which carries an armature in flight with its own PI:
+    voltage-mode hold (fixed or supply table; on a full bridge slow decay or mixed decay,
+    the flights after the threshold taking each off-time's fast part through the body
+    diodes; or the closed loop, which carries an armature in flight with its own PI:
     :func:`coildrive.design.boost_armature.loop_pull_in`) or a current-mode hold -- that one
     (and the closed loop with an eddy term) where the design finds the armature seated
     within the peak at every corner
@@ -1526,8 +1527,6 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = "armature.restitution", ("a moving armature that bounces off the seat and an eddy-current "
                                             "term together (the end current's window is flown for a plain coil "
                                             "only)")
-    elif armature is not None and hold.fast_fraction > 0:
-        key, why = "hold.fast_fraction", "a moving armature and a full bridge's mixed-decay hold together"
     elif pull_in.compensate:
         key, why = "pull_in.compensate", ("a supply-compensated peak (the boosted peak runs from the boost, "
                                           "not the main supply, and ends at its threshold: nothing to compensate)")
@@ -1545,7 +1544,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "eddy term on a supply that sinks; with [armature] a linear coil on one switch, an "
                          "eddy term too, no clamp), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
-                         "with [armature]: no mixed decay, no restitution with an eddy term; a "
+                         "with [armature]: no restitution with an eddy term; a "
                          "latching coil: a linear coil and its reset winding, a stiff main supply, no [armature]")
 
 

@@ -300,6 +300,7 @@ def test_design_simulate_and_check(tmp_path, sink):
     assert report.ok, [(i.name, i.status, i.detail) for i in report.items]
 
 
+@pytest.mark.compiler
 def test_firmware_in_the_loop(tmp_path):
     """The compiled reference driver (gcc) in the loop: its mixed-decay hold's fast parts
     (the timer count it gives through ``port_fast_end``) and the release into the drooping

@@ -188,7 +188,8 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
             i_th, _, i_trip = threshold(drive)
             boosted = runs(drive, p_pull, duty_pts, np.ravel(np.broadcast_to(ss.period, shape)),
                            np.ravel(ss.i_max), (i_th, i_trip),
-                           None if ss.terminal_max is None else np.ravel(np.maximum(ss.terminal_max, ss.i_max)))
+                           None if ss.terminal_max is None else np.ravel(np.maximum(ss.terminal_max, ss.i_max)),
+                           mixed=None if lp.mixed is None else lp.mixed.flat(shape))
         pin = boosted.slow
     elif reuse is not None and p_pull.same_points(reuse.params):
         # Same points and coil temperatures: the runs do not depend on the peak length.
