@@ -1796,14 +1796,17 @@ def _latch_drive(source, path, data, brd, coil, sheet, supply, ambient, thermal,
 
 
 def _check_latch(source: str, switch: Switch, freewheel: Freewheel, latch: Latch,
-                 armature: Armature | None = None, supply: Supply | None = None, coil=None) -> None:
+                 armature: Armature | None = None, supply: Supply | None = None) -> None:
     """A latching coil's circuit: a full bridge reverses one coil (no [reset_coil]); one
     switch per winding (low or high side) needs the reset winding. A moving armature is
     the mechanically latched one (a catch holds it seated, the reset winding trips the
     catch): with a reset winding only, since reversing one coil unlatches only a
     permanent-magnet armature, which the armature model does not have. A clamp across the
     switch (each decay draws from the bus: the pulse energies take it; on the drooping bus
-    a linear coil's, the clamped decay's draw on the capacitor in closed form)."""
+    the clamped decay's draw on the capacitor: a linear coil's in closed form, a
+    flux-linkage curve's or an eddy term's by the stepped or closed-form runs of
+    :func:`coildrive.model.flux_bus_decay.clamp_decay`; not with a moving armature, whose
+    set pulse's seat run would have to carry the clamped decay's draw)."""
     if switch.topology == "full_bridge" and latch.reset_coil is not None:
         raise InputError(source, "reset_coil", "a full bridge resets the one coil with the other "
                          "polarity: expected [reset_coil] left out (or a low- or high-side board)")
@@ -1812,15 +1815,11 @@ def _check_latch(source: str, switch: Switch, freewheel: Freewheel, latch: Latch
                          "by a permanent magnet, which the armature model does not have: expected "
                          "[armature] left out, or a reset winding ([reset_coil]) on a low- or "
                          "high-side board (a catch that the reset winding trips)")
-    if (freewheel.type == "clamp" and supply is not None and supply.droops and coil is not None
-            and (armature is not None or coil.flux_current or coil.eddy_resistance
-                 or (latch.reset_coil is not None and (latch.reset_coil.flux_current
-                                                       or latch.reset_coil.eddy_resistance)))):
+    if freewheel.type == "clamp" and supply is not None and supply.droops and armature is not None:
         raise InputError(source, "freewheel.type", "\"clamp\" with a latching coil on the drooping bus "
-                         "(supply.source_resistance) is designed for a linear coil only (the clamped "
-                         "decay's draw on the capacitor is closed form there): expected [armature], the "
-                         "flux-linkage curve and the eddy-current term left out, \"diode\", \"zener\" "
-                         "or \"resistor\", or a stiff bus")
+                         "(supply.source_resistance) is not designed with a moving [armature] (the set "
+                         "pulse's seat run does not carry the clamped decay's draw on the capacitor): "
+                         "expected [armature] left out, \"diode\", \"zener\" or \"resistor\", or a stiff bus")
     if freewheel.split_decay:
         raise InputError(source, "freewheel.split_decay", "a latching coil has no hold to decay slowly "
                          "in: expected split_decay left out")
@@ -1852,6 +1851,6 @@ def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_
                          f"{freewheel.clamp_voltage:g} V is not above supply.max ({supply.max:g} V): "
                          "the clamp would conduct with the switch off")
     if latch is not None:
-        _check_latch(source, switch, freewheel, latch, armature, supply, coil)
+        _check_latch(source, switch, freewheel, latch, armature, supply)
     return Drive(path.stem, coil, supply, ambient, thermal, pull_in, hold, release, brd, switch,
                  freewheel, armature, source, duty, latch=latch)
