@@ -1415,48 +1415,6 @@ def resolve_board(spec: str, relative_to: Path | None = None) -> Path:
                      "and no such file")
 
 
-def _check_droop(source: str, coil: Coil, switch: Switch, supply: Supply,
-                 armature: Armature | None, hold: Hold) -> None:
-    """What the drooping bus (``supply.source_resistance``) is modelled with: a linear coil
-    or a flux-linkage curve, either with an eddy-current term (a curve with one:
-    :func:`coildrive.model.flux_bus.bus`), one switch (low or high side) or a full bridge
-    (a slow-decay hold: voltage mode, fixed or supply table, current mode or the closed
-    loop; every turn-off's fast decay into the bus is :mod:`coildrive.model.bus_decay`,
-    with a curve :mod:`coildrive.model.flux_bus_decay`, on a supply that cannot sink with
-    the feed blocking, with an eddy term too: :mod:`coildrive.design.bridge_bus`; its
-    mixed-decay hold, whose every off-time returns current into the bus, with a linear
-    coil or a flux-linkage curve, either with an eddy term, and no armature: on a supply
-    that sinks the bus's rise bounded by
-    :func:`coildrive.model.bus_decay.mixed_hold_rise`, on one that cannot by the coil's top
-    energy, :func:`coildrive.model.bus_decay.no_sink_energy_top`). A latching coil
-    on one switch, with a moving armature too (the set pulse's seat run carries the
-    capacitor, linear or on its two curves, an eddy term too:
-    :func:`coildrive.design.latch.seat_run`), or on a full bridge with a linear coil, a
-    flux-linkage curve or an eddy term (linear or on a curve), on a supply that sinks or
-    not (each pulse's fast decay into the bus: :func:`coildrive.design.latch.bus_decays`;
-    a curve's run into the capacitor alone traced in time by
-    :func:`coildrive.model.bridge.flux_pump_trace`). Any hold
-    (the droop is the peak's; a regulated hold takes it out of the hold) and any freewheel
-    path (a clamp's release, which draws from the bus, is computed on the undrooped bus:
-    the safe side). A moving armature: a linear coil or its open and seated curves (an
-    eddy term, curves, or both), one switch, a voltage-mode (fixed, supply-table or
-    closed-loop) or current-mode hold (the pull-in run carries the capacitor,
-    :mod:`coildrive.model.armature_runs`; the hold is regulated on the stiff bus). Anything
-    else is refused in one line rather than designed on a stiff bus. A moving armature on a
-    full bridge: a linear coil or its open and seated curves, either with an eddy term (a
-    supply that sinks or not), a voltage-mode or current-mode hold; its release is the fast
-    decay into the bus with the armature letting go, the capacitor a state of the run (with
-    an eddy term the magnetising branch behind the loop's Thevenin pair, the diodes blocking
-    at the terminal current's zero: :mod:`coildrive.model.armature_bus_release`)."""
-    if not supply.droops:
-        return
-    if switch.topology == "full_bridge" and hold.fast_fraction > 0 and armature is not None:
-        raise InputError(source, "hold.fast_fraction", "the drooping bus (supply.source_resistance) is not "
-                         "modelled with a full bridge's mixed-decay hold with an [armature]: expected "
-                         "source_resistance left out, or one switch (a full bridge: a slow-decay "
-                         "peak-and-hold, a mixed decay without an [armature] or a latching coil)")
-
-
 def _read_boost(s: "_Section") -> tuple:
     """The ``[supply]`` boost keys, in :class:`Supply`'s order (all 0 without ``boost``)."""
     boost = s.quantity("boost", "voltage", 0.0, nonnegative=True)
@@ -1537,8 +1495,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
     mode), a peak that ends at its threshold. A moving armature
     (:mod:`coildrive.model.armature_boost`): a linear coil (an eddy term too), a
-    voltage-mode hold (fixed or supply table; on a full bridge slow decay, no mixed decay;
-    or the closed loop, which carries an armature in flight with its own PI:
+    voltage-mode hold (fixed or supply table; on a full bridge slow decay or mixed decay,
+    the flights after the threshold taking each off-time's fast part through the body
+    diodes; or the closed loop, which carries an armature in flight with its own PI:
     :func:`coildrive.design.boost_armature.loop_pull_in`) or a current-mode hold -- that one
     (and the closed loop with an eddy term) where the design finds the armature seated
     within the peak at every corner
@@ -1586,8 +1545,6 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = "armature.restitution", ("a moving armature that bounces off the seat and an eddy-current "
                                             "term together (the end current's window is flown for a plain coil "
                                             "only)")
-    elif armature is not None and hold.fast_fraction > 0:
-        key, why = "hold.fast_fraction", "a moving armature and a full bridge's mixed-decay hold together"
     elif pull_in.compensate:
         key, why = "pull_in.compensate", ("a supply-compensated peak (the boosted peak runs from the boost, "
                                           "not the main supply, and ends at its threshold: nothing to compensate)")
@@ -1605,7 +1562,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "eddy term on a supply that sinks; with [armature] a linear coil on one switch, an "
                          "eddy term too, no clamp), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
-                         "with [armature]: no mixed decay, no restitution with an eddy term; a "
+                         "with [armature]: no restitution with an eddy term; a "
                          "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, or a "
                          "linear coil on a full bridge with a boost capacitor on a stiff main supply; a stiff or a "
                          "drooping main supply, no reset settle_time; with [armature] a linear coil on a stiff main "
@@ -1860,14 +1817,17 @@ def _latch_drive(source, path, data, brd, coil, sheet, supply, ambient, thermal,
 
 
 def _check_latch(source: str, switch: Switch, freewheel: Freewheel, latch: Latch,
-                 armature: Armature | None = None, supply: Supply | None = None, coil=None) -> None:
+                 armature: Armature | None = None, supply: Supply | None = None) -> None:
     """A latching coil's circuit: a full bridge reverses one coil (no [reset_coil]); one
     switch per winding (low or high side) needs the reset winding. A moving armature is
     the mechanically latched one (a catch holds it seated, the reset winding trips the
     catch): with a reset winding only, since reversing one coil unlatches only a
     permanent-magnet armature, which the armature model does not have. A clamp across the
     switch (each decay draws from the bus: the pulse energies take it; on the drooping bus
-    a linear coil's, the clamped decay's draw on the capacitor in closed form)."""
+    the clamped decay's draw on the capacitor: a linear coil's in closed form, a
+    flux-linkage curve's or an eddy term's by the stepped or closed-form runs of
+    :func:`coildrive.model.flux_bus_decay.clamp_decay`; not with a moving armature, whose
+    set pulse's seat run would have to carry the clamped decay's draw)."""
     if switch.topology == "full_bridge" and latch.reset_coil is not None:
         raise InputError(source, "reset_coil", "a full bridge resets the one coil with the other "
                          "polarity: expected [reset_coil] left out (or a low- or high-side board)")
@@ -1876,15 +1836,11 @@ def _check_latch(source: str, switch: Switch, freewheel: Freewheel, latch: Latch
                          "by a permanent magnet, which the armature model does not have: expected "
                          "[armature] left out, or a reset winding ([reset_coil]) on a low- or "
                          "high-side board (a catch that the reset winding trips)")
-    if (freewheel.type == "clamp" and supply is not None and supply.droops and coil is not None
-            and (armature is not None or coil.flux_current or coil.eddy_resistance
-                 or (latch.reset_coil is not None and (latch.reset_coil.flux_current
-                                                       or latch.reset_coil.eddy_resistance)))):
+    if freewheel.type == "clamp" and supply is not None and supply.droops and armature is not None:
         raise InputError(source, "freewheel.type", "\"clamp\" with a latching coil on the drooping bus "
-                         "(supply.source_resistance) is designed for a linear coil only (the clamped "
-                         "decay's draw on the capacitor is closed form there): expected [armature], the "
-                         "flux-linkage curve and the eddy-current term left out, \"diode\", \"zener\" "
-                         "or \"resistor\", or a stiff bus")
+                         "(supply.source_resistance) is not designed with a moving [armature] (the set "
+                         "pulse's seat run does not carry the clamped decay's draw on the capacitor): "
+                         "expected [armature] left out, \"diode\", \"zener\" or \"resistor\", or a stiff bus")
     if freewheel.split_decay:
         raise InputError(source, "freewheel.split_decay", "a latching coil has no hold to decay slowly "
                          "in: expected split_decay left out")
@@ -1910,13 +1866,12 @@ def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_
     merged, origins = _merged(brd.source, fw_board, source, fw_drive)
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
     _check_bridge(source, origins, switch, freewheel, supply, hold, coil)
-    _check_droop(source, coil, switch, supply, armature, hold)
     _check_boost(source, origins, coil, switch, freewheel, supply, hold, pull_in, armature, duty, latch)
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:
         raise InputError(origins.get("clamp_voltage", source), "freewheel.clamp_voltage",
                          f"{freewheel.clamp_voltage:g} V is not above supply.max ({supply.max:g} V): "
                          "the clamp would conduct with the switch off")
     if latch is not None:
-        _check_latch(source, switch, freewheel, latch, armature, supply, coil)
+        _check_latch(source, switch, freewheel, latch, armature, supply)
     return Drive(path.stem, coil, supply, ambient, thermal, pull_in, hold, release, brd, switch,
                  freewheel, armature, source, duty, latch=latch)

@@ -27,7 +27,6 @@ a cable) is invented.
 from __future__ import annotations
 
 import json
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -158,13 +157,3 @@ def test_design_on_the_drooping_bus(tmp_path, sink):
         # has moved much): measured 2.4e-6 apart, within the run's error against solve_ivp
         assert doc["topology"]["bridge"]["pumped_bus_v"] == pytest.approx(sup["highest_bus_v"], rel=1e-5)
         assert sup["highest_bus_v"] > 40.0   # (measured 45.16 V: the over-current trip on 100 uF)
-
-
-def test_what_stays_refused(tmp_path):
-    """A mixed-decay hold (each off-time's fast part into the bus) stays refused in one
-    line; an eddy-current term is designed (tests/test_bridge_armature_droop_flux.py)."""
-    path = Path(_text(tmp_path))
-    path.write_text(path.read_text().replace('frequency = "20 kHz"', 'frequency = "20 kHz"\nfast_fraction = 0.3'))
-    out = run_cli("design", str(path))
-    assert out.returncode == 2
-    assert "hold.fast_fraction: the drooping bus" in out.stderr and out.stderr.count("\n") == 1

@@ -155,14 +155,3 @@ def test_design_end_to_end(tmp_path, kind, sink):
     assert r.returncode == 0, r.stderr
     rows = np.loadtxt(csv, delimiter=",", skiprows=1)
     assert rows[-1, 1] == 0.0 and np.max(rows[:, 1]) > 0.3
-
-
-def test_mixed_decay_with_an_armature_on_the_drooping_bus_still_refused(tmp_path):
-    text = _mixed(tmp_path).read_text() + (
-        '\n[armature]\ninductance_open = "70 mH"\ninductance_closed = "120 mH"\nstroke = "0.4 mm"\n'
-        'mass = "3 g"\nspring_preload = "2 N"\nspring_rate = "1 N/mm"\n')
-    p = tmp_path / "arm.toml"
-    p.write_text(text)
-    out = run_cli("design", str(p))
-    assert out.returncode == 2 and "hold.fast_fraction" in out.stderr and "[armature]" in out.stderr, out.stderr
-    assert len(out.stderr.strip().splitlines()) == 1

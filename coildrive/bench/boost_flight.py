@@ -118,10 +118,12 @@ class BoostFlight:
         self.live = self.current > 0.0
         return tr.time, tr.current
 
-    def run(self, t0: float, t1: float, on_end: float, boost: bool, path: str):
+    def run(self, t0: float, t1: float, on_end: float, boost: bool, path: str, fast_end: float | None = None):
         """Fly from ``t0`` to ``t1`` s: the switch on until ``on_end`` s (from the boost
         capacitor while ``boost``, else from the main supply), then off through ``path``
-        (``"hold"`` or ``"release"``). Returns ``current(x)``: A at device times in the stretch."""
+        (``"hold"`` or ``"release"``); ``fast_end``: a full bridge's mixed-decay hold, its
+        off-time through the release's path (all four open) until then, s, before ``path``.
+        Returns ``current(x)``: A at device times in the stretch."""
         if t1 <= t0:
             i = self.current
             return lambda x: np.full(np.shape(x), i)
@@ -133,11 +135,15 @@ class BoostFlight:
             times.append(t)
             amps.append(i)
         schedule = [] if boost else [(cut, True)] if cut > t0 else []
-        if t1 > cut:
+        off_from = cut
+        if fast_end is not None and path == "hold" and min(fast_end, t1) > cut:
+            off_from = min(fast_end, t1)
+            schedule.append((off_from, False, None, "release"))
+        if t1 > off_from:
             schedule.append((t1, False, None, path))
         edges = [t0 if not boost else cut] + [seg[0] for seg in schedule]
         self.flown += ([(t0, cut, "boost")] if boost and cut > t0 else []) + [
-            (a, seg[0], "on" if seg[1] else path) for a, seg in zip(edges, schedule)]
+            (a, seg[0], "on" if seg[1] else seg[3]) for a, seg in zip(edges, schedule)]
         if schedule:
             t, i = self._fly(self._main(), schedule, cut if boost else t0, False, self.p_release)
             times.append(t)

@@ -738,7 +738,10 @@ class FirmwareDevice(LineOutput):
             return sensed
 
         path = "hold" if bypass else "release"
-        first = fl.run(t0, s, on_end, boosting, path)
+        #: a mixed-decay hold's off-time: fast (all four open) until the count the driver gave
+        fast_t = (max(on_end, t0 + T * min(self._fast_end, self.period_counts) / self.period_counts)
+                  if self._mixed and bypass else None)
+        first = fl.run(t0, s, on_end, boosting, path, fast_t)
         self._run_samples(t0, s, sensing(first, on_end))
         for tt in [x for x in ticks if x < s]:
             self._do_tick(tt)
@@ -752,7 +755,9 @@ class FirmwareDevice(LineOutput):
         still = boosting and bool(new >> 26 & 1 and new >> 24 & 1)
         if boosting and not still:          # the boost off now: it recharges from here
             self._boost_v, self._boost_t = fl.u, s
-        second = fl.run(s, t0 + T, on_end, still, path)
+        if self._mixed:
+            self._fast_end = int(self.lib.fil_fast_end())   # the next period's
+        second = fl.run(s, t0 + T, on_end, still, path, fast_t)
         self._outputs = new
         self._run_samples(s, t0 + T, sensing(second, on_end))
         for tt in [x for x in ticks if x >= s]:

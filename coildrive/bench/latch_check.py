@@ -195,7 +195,9 @@ def predict_pulse(design, name: str, supply: float, coil_temp: float, zero_curre
     elif wd.supply.droops and wd.freewheel.type == "clamp":   # the clamped decay draws the bus down further
         from ..model.latch_waveform import clamp_decay_after, pulse
         _, _, on, bus, *_ = pulse(wd, supply, coil_temp, 1.0, 1.0, length, 2)
-        t_zero = float(np.ravel(clamp_decay_after(wd, rel, i_end, float(bus[on == 1][-1]), level).drop_time)[0])
+        clamped = clamp_decay_after(wd, rel, i_end, float(bus[on == 1][-1]), level)
+        # (an eddy term: the clamp blocks where the terminal current, which the sense reads, stops)
+        t_zero = float(np.ravel(clamped.zero_time if isinstance(ind, EddyCoil) else clamped.drop_time)[0])
     return {"length_s": length, "end_current_a": i_sensed, "slope_a_s": slope, "time_to_zero_s": t_zero,
             "code_time_s": resolution / fall}
 

@@ -148,13 +148,16 @@ def _end(drive: Drive, pb: ArmatureParams, pin: PullInBatch, i_trip: float):
 
 
 def runs(drive: Drive, p: ArmatureParams, duty, period, i_top, thresholds: tuple[float, float],
-         bus_top=None) -> BoostRuns:
+         bus_top=None, mixed=None) -> BoostRuns:
     """The runs of the module docstring at the points of ``p`` (the hold's loop on the main
     supply), the hold's ``duty`` and ``period`` s (per point) and its steady ripple top
     ``i_top`` A (the magnetising current's with an eddy term); ``thresholds``: the threshold
     and the highest trip current, A (:func:`coildrive.design.boost.threshold`). ``bus_top``:
     the most current the hold draws from the bus (A per point; with an eddy term the
-    terminal current's top, which steps above ``i_top`` at each switch-on), default ``i_top``."""
+    terminal current's top, which steps above ``i_top`` at each switch-on), default ``i_top``.
+    ``mixed``: a full bridge's mixed-decay hold (:class:`~coildrive.model.pwm.MixedDecay`,
+    its arrays per point): the hold after the threshold decays fast for that fraction of
+    each off-time first (:func:`~coildrive.model.armature_boost.boosted_pull_in`)."""
     i_th, i_trip = thresholds
     low, high = boosted_params(drive, p, False), boosted_params(drive, p, True)
     long_time, _, low_boost, energy_low = _end(drive, low, pull_in(low, trip=i_trip), i_trip)
@@ -162,7 +165,7 @@ def runs(drive: Drive, p: ArmatureParams, duty, period, i_top, thresholds: tuple
     until = drive.pull_in.margin * (float(np.max(finite)) if finite.size else 0.0)
     end_time, end_current, end_boost, energy_high = _end(drive, high, pull_in(high, trip=i_trip), i_trip)
     p_hold, bus0 = main_bus(drive, p, np.maximum(end_current, i_top if bus_top is None else bus_top))
-    slow = boosted_pull_in(low, p_hold, i_th, duty, period, until, i_top, bus0=bus0, orbit=False)
+    slow = boosted_pull_in(low, p_hold, i_th, duty, period, until, i_top, bus0=bus0, orbit=False, mixed=mixed)
     fast_time = pull_in(high, trip=i_th).trip_time
     most = None
     if p.droops and pwm_on_bus(drive):   # the hand-over at the most current, onto the bus
@@ -292,8 +295,14 @@ def sampled_pull_in(drive: Drive, res, v_factor, c_factor, duty, timeout):
     draw = top if t_max is None else np.maximum(top, per_point(t_max))
     p_hold, bus0 = main_bus(drive, p, np.maximum(res.armature.boost.end_current, draw))
     pin = boosted_pull_in(pb, p_hold, threshold(drive)[0], per_point(duty), per_point(res.hold.period),
-                          per_point(timeout), top, bus0=bus0, orbit=False)
+                          per_point(timeout), top, bus0=bus0, orbit=False, mixed=_mixed(res.loop))
     return replace(res, pull_in_time=pin.seat_time.reshape(np.shape(res.pull_in_time)))
+
+
+def _mixed(lp):
+    """The mixed-decay hold of the loop ``lp`` with its arrays flat over the points (a
+    :class:`~coildrive.model.pwm.MixedDecay`), or ``None`` without one."""
+    return None if lp.mixed is None else lp.mixed.flat(np.shape(lp.v_on))
 
 
 def require_seated_in_peak(drive: Drive, label, pin: PullInBatch, key: str, hold: str, why: str,
@@ -381,8 +390,9 @@ def loop_pull_in(drive: Drive, res, loop, counts: int, reading, switch_leg: bool
                           switch_leg, 2**b.adc.bits - 1)
     i_th, code, _ = threshold(drive)
     period = np.ravel(np.broadcast_to(np.asarray(res.hold.period, float), (len(arm.params),)))[late]
+    mixed = _mixed(res.loop)
     got = boosted_pull_in(boosted_params(drive, p, False), p, i_th, control.first(code), period, runs_.window,
-                          rtol=1e-7, control=control)
+                          rtol=1e-7, control=control, mixed=None if mixed is None else mixed.at(late))
     fields = ("status", "seat_time", "seat_current", "impact_time", "impact_speed", "dip_current",
               "dip_time", "stall_gap", "bound", "bounces", "steps")
     merged = {}

@@ -120,17 +120,25 @@ def no_sink_top(drive: Drive, res, peak_end) -> np.ndarray | None:
     :func:`coildrive.model.bus_decay.no_sink_energy_top` with the coil's energy at most
     its stored energy at :func:`_coil_top` (``1/2 L top^2``, a curve's ``int i dpsi``; with
     an eddy term the magnetising branch's, the eddy resistance stores none) when the bus
-    crosses up through the source. ``None`` otherwise (with a moving armature too: its
-    spring's energy may feed the circuit). (The fast decays from starting
+    crosses up through the source. With a moving armature (seated at rest through the hold:
+    the seated coil's store) its spring and load may feed the circuit too once a turn-off
+    lets it go: the energy they can give up between the seat and any gap
+    (:attr:`coildrive.model.armature.ArmatureParams.opening_work`) adds to the coil's top
+    energy -- the sum ``1/2 C v^2 + W + kinetic + the spring's and the load's potential``
+    never rises while the feed blocks (the pull only trades energy between the field and
+    the motion; damping and the stops' impacts lose it), and the kinetic energy and the
+    field's store are never negative. ``None`` otherwise. (The fast decays from starting
     buses at or below the source give the release's times and charges: a bus above it
     decays faster, with less charge.)"""
     lp = res.loop
-    if not full_bridge(drive) or drive.supply.sink or lp.mixed is None or res.armature is not None:
+    if not full_bridge(drive) or drive.supply.sink or lp.mixed is None:
         return None
     coil = lp.inductance
     mag = coil.magnetising if isinstance(coil, EddyCoil) else coil
-    return bus_decay.no_sink_energy_top(lp.v_on, drive.supply.capacitance,
-                                        stored_energy(mag, _coil_top(res, peak_end)))
+    w_top = stored_energy(mag, _coil_top(res, peak_end))
+    if res.armature is not None:
+        w_top = w_top + np.reshape(res.armature.params.opening_work, np.shape(w_top))
+    return bus_decay.no_sink_energy_top(lp.v_on, drive.supply.capacitance, w_top)
 
 
 def drooped(drive: Drive) -> bool:

@@ -188,7 +188,8 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
             i_th, _, i_trip = threshold(drive)
             boosted = runs(drive, p_pull, duty_pts, np.ravel(np.broadcast_to(ss.period, shape)),
                            np.ravel(ss.i_max), (i_th, i_trip),
-                           None if ss.terminal_max is None else np.ravel(np.maximum(ss.terminal_max, ss.i_max)))
+                           None if ss.terminal_max is None else np.ravel(np.maximum(ss.terminal_max, ss.i_max)),
+                           mixed=None if lp.mixed is None else lp.mixed.flat(shape))
         pin = boosted.slow
     elif reuse is not None and p_pull.same_points(reuse.params):
         # Same points and coil temperatures: the runs do not depend on the peak length.
@@ -203,7 +204,9 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
         # the fast decay returns the current into the drooping bus while the armature lets
         # go: the capacitor a state of the release run, from the range of starting buses
         on_bus = _release_on_bus(drive, flat_rel if lp_rel is not None and lp_rel is not lp else flat,
-                                 l_factor, shape, pin, np.ravel(ss.i_max))
+                                 l_factor, shape, pin, np.ravel(ss.i_max),
+                                 None if lp.mixed is None else (lp.mixed.fraction, np.ravel(
+                                     np.broadcast_to(ss.period, shape))))
         rel = on_bus.run
     if rel is None:
         rel = (late_release(p, p_rel, np.ravel(ss.i_max), lag) if lag > 0 else
@@ -218,7 +221,7 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
                            release_from=np.ravel(ss.i_max).copy(), boost=boosted, bus_release=on_bus)
 
 
-def _release_on_bus(drive: Drive, flat_rel: Loop, l_factor, shape, pin, i_max):
+def _release_on_bus(drive: Drive, flat_rel: Loop, l_factor, shape, pin, i_max, mixed=None):
     """A moving armature's release on a full bridge on the drooping bus (a linear coil or
     its curves, an eddy term too; ``supply.sink`` either way): :func:`coildrive.model.armature_bus_release.release_over` from
     :data:`coildrive.model.bus_decay.STARTS` starting buses between the lowest
@@ -227,10 +230,17 @@ def _release_on_bus(drive: Drive, flat_rel: Loop, l_factor, shape, pin, i_max):
     ``i_max`` A (with an eddy term the terminal current they bound),
     :func:`~coildrive.model.supply.bus_floor` under it (as
     :func:`coildrive.design.bridge_bus.bus_range`), never below ``-2 V_d``; ``i_max`` and
-    the release's currents are magnetising currents with an eddy term."""
+    the release's currents are magnetising currents with an eddy term. ``mixed``: a
+    mixed-decay hold's ``(fast fraction, period s per point)``; on a supply that sinks its
+    fast parts return current into the bus, so the starts reach above the source by
+    :func:`coildrive.model.bus_decay.mixed_hold_rise` (the current returned at most the
+    larger of the terminal top and the magnetising one, as
+    :func:`coildrive.design.bridge_bus.bus_range`; on one that cannot the starts stop at
+    the source and the highest bus is bounded by energy,
+    :func:`coildrive.design.bridge_bus.no_sink_top`)."""
     from ..model.armature import params_from_loop
     from ..model.armature_bus_release import release_over
-    from ..model.bus_decay import STARTS
+    from ..model.bus_decay import STARTS, mixed_hold_rise
     from ..model.supply import bus_floor
 
     s = drive.supply
@@ -239,13 +249,18 @@ def _release_on_bus(drive: Drive, flat_rel: Loop, l_factor, shape, pin, i_max):
     v_s = p_bus.v_on
     v_d2 = flat_rel.v_off - flat_rel.v_on     # the two body diodes (V_s + 2 V_d into the bus)
     end = np.where(np.isfinite(pin.peak_end_current), pin.peak_end_current, 0.0)
-    top = np.maximum(end, np.where(np.isfinite(i_max), i_max, 0.0))
+    top_m = top = np.maximum(end, np.where(np.isfinite(i_max), i_max, 0.0))
     if p_bus.eddy is not None:   # the bus feeds the terminal current: at most (V_s + R_e i_m)/(R + R_e)
         from ..model.eddy import terminal
         top = terminal(top, v_s, p_bus.r_on, p_bus.eddy)
     low = np.where(np.isfinite(pin.lowest_bus), pin.lowest_bus, v_s)
     lowest = np.maximum(np.minimum(low, bus_floor(v_s, s.source_resistance, top)), -v_d2)
-    return release_over(p_bus, np.where(np.isfinite(i_max), i_max, 0.0), lowest, v_s, v_d2, STARTS,
+    highest = v_s
+    if mixed is not None and s.sink:
+        fraction, period = mixed
+        highest = v_s + mixed_hold_rise(s.source_resistance, s.capacitance, np.maximum(top, top_m),
+                                        fraction * period, period)
+    return release_over(p_bus, np.where(np.isfinite(i_max), i_max, 0.0), lowest, highest, v_d2, STARTS,
                         sink=s.sink)
 
 

@@ -64,7 +64,7 @@ from ..model.eddy import EddyCoil, release_eddy_energy, stored_energy
 from ..model.eddy import terminal as eddy_terminal
 from ..model.flux import FluxCoil
 from ..model.flux import rise_integrals as flux_rise_integrals
-from ..model.flux_bus_decay import fast_decays
+from ..model.flux_bus_decay import clamp_decay, fast_decays
 from ..model.rl import decay_integrals, decay_time, rise_current, rise_integrals
 from ..model.topology import topology_of
 from .checks import SAFETY_CAUTION
@@ -533,16 +533,16 @@ def time_to_zero(drive: Drive, lp, rel, i0, fast=None):
 def clamp_decays_from_full(drive: Drive, full, rel, t_pulse: float):
     """A clamp across the switch on the drooping bus: the decay after a pulse of
     ``t_pulse`` s from a full capacitor (the loop ``full``: the source at each point; a
-    linear coil, config), the current flowing on from the bus through the coil into the
-    clamp (:func:`coildrive.model.bus_decay.clamp_decay`, from the pulse's end state of
-    :func:`coildrive.model.supply.state`; ``rel`` the release loop at the same points: its
-    resistance, and ``V_clamp`` = ``v_off + supply``)."""
-    from ..model import supply as bus_model
-
+    linear coil, a flux-linkage curve or an eddy term), the current flowing on from the bus
+    through the coil into the clamp (:func:`coildrive.model.flux_bus_decay.clamp_decay`,
+    from the pulse's end state on the drooping bus, :func:`~coildrive.design.supply.bus_at`:
+    with an eddy term the magnetising current; ``rel`` the release loop at the same points:
+    its resistance, and ``V_clamp`` = ``v_off + supply``)."""
     s = drive.supply
-    i_e, v_e = bus_model.state(np.full(np.shape(full.v_on), t_pulse), bus_at(drive, full, full.inductance))
-    return bus_decay.clamp_decay(i_e, v_e, full.v_on, s.source_resistance, s.capacitance, rel.r_off,
-                                 full.inductance, rel.v_off + rel.supply)
+    b = bus_at(drive, full, full.inductance)
+    i_e, v_e = model_of(b).state(np.full(np.shape(full.v_on), t_pulse), b)
+    return clamp_decay(full.inductance, i_e, v_e, full.v_on, s.source_resistance, s.capacitance, rel.r_off,
+                       rel.v_off + rel.supply)
 
 
 def _bus_check(drive: Drive, name: str, bus_top, pts: Points) -> Check:

@@ -287,6 +287,22 @@ class ArmatureParams:
         """Spring + load force in N pushing open at gap ``x``."""
         return self.preload + self.rate * (self.stroke - x) + self.load
 
+    @property
+    def opening_work(self) -> np.ndarray:
+        """The most work in J the spring and the load can do on the way from the seat to any
+        gap: ``max over x in [0, stroke] of int_0^x opening_force dx'`` -- the whole stroke's
+        ``(preload + load) stroke + rate stroke^2 / 2`` while the force pushes open all the
+        way, else up to the gap where it falls to zero (0 if it never pushes open). The
+        most mechanical energy the armature can hand to the circuit after resting on the
+        seat (its kinetic energy and the field's store are never negative)."""
+        a = self.preload + self.load                      # the force at the open stop
+        r = self.rate
+        top = a + r * self.stroke                         # the force on the seat
+        with np.errstate(divide="ignore", invalid="ignore"):
+            zero = np.where(r > 0, top / np.where(r > 0, r, 1.0), np.where(a >= 0, np.inf, 0.0))
+        x = np.clip(zero, 0.0, self.stroke)
+        return np.maximum(top * x - 0.5 * r * x * x, 0.0)
+
     def reference_scales(self) -> np.ndarray:
         """Scales of (lambda, x, v) for the error control: V*s, m, m/s."""
         i_ref = np.maximum(self.v_on / self.r_on, self.stay_current)

@@ -24,6 +24,12 @@ is not seated by then fails the design anyway). A hold whose duty the firmware s
 by period (a closed loop: ``control``) flies the same edges with each period's duty from the
 current at the period's conversion (the flight's state there).
 
+A full bridge's mixed-decay hold (``mixed``, a :class:`~coildrive.model.pwm.MixedDecay`
+per point) starts each off-time of the flights fast -- all four switches open, through the
+body diodes into the bus: the release path's ``R_fast`` and ``V_fast = V_bus + 2 V_d``
+(the diodes blocking at the current's zero) -- for ``fraction`` of it, then slow (the hold's
+own off path); the same batched flight with the off path swapped per point at each edge.
+
 On a drooping main supply (``p_hold.droops``: ``source_resistance`` and ``capacitance``
 behind the hold's switch) the main bus feeds the hold from the hand-over on, its bulk
 capacitor a sixth state of the flight (:class:`~coildrive.model.armature_flight._Rhs`:
@@ -54,6 +60,7 @@ from .armature import (BOUND, MAX_BOUNCES, OPEN, REST_FRACTION, SEAT, SEATED, ST
                        ArmatureParams)
 from .armature_flight import fly_mixed, is_stiff
 from .armature_runs import PullInBatch, pull_in
+from .pwm import MixedDecay
 from . import supply as bus_model
 
 #: Most PWM edges the hold after the threshold is followed through (never hang; the time
@@ -76,11 +83,14 @@ def boost_params(p: ArmatureParams, v_b, c_b, r_b) -> ArmatureParams:
         source_resistance=np.where(c > 0, np.inf, 0.0), capacitance=c)
 
 
-def hold_schedule(t0: float, t_end: float, duty: float, period: float) -> list:
+def hold_schedule(t0: float, t_end: float, duty: float, period: float, fast: float = 0.0) -> list:
     """The PWM hold's segments ``(t_end, on)`` from ``t0`` s to ``t_end`` s: on for
-    ``duty x period`` s, then off for the rest of each period."""
+    ``duty x period`` s, then off for the rest of each period. ``fast``: a mixed-decay
+    hold's fraction of each off-time that decays fast, its segment ``(t_end, False, None,
+    "release")`` (:func:`~coildrive.model.armature_sim.simulate`'s release path) first."""
     out = []
     t_on = duty * period
+    t_fast = fast * (period - t_on)
     k = 0
     while True:
         start = t0 + k * period
@@ -88,14 +98,16 @@ def hold_schedule(t0: float, t_end: float, duty: float, period: float) -> list:
             return out
         if t_on > 0:
             out.append((min(start + t_on, t_end), True))
-        if t_on < period and start + t_on < t_end:
+        if t_fast > 0 and start + t_on < t_end:
+            out.append((min(start + t_on + t_fast, t_end), False, None, "release"))
+        if t_on + t_fast < period and start + t_on + t_fast < t_end:
             out.append((min(start + period, t_end), False))
         k += 1
 
 
 def boosted_pull_in(p_boost: ArmatureParams, p_hold: ArmatureParams, trip, duty, period, until,
                     i_top=None, rtol: float = 1e-7, bus0=None, orbit: bool = True,
-                    control=None) -> PullInBatch:
+                    control=None, mixed: MixedDecay | None = None) -> PullInBatch:
     """Switch-on from rest: the boost (``p_boost``, :func:`boost_params`) until the current
     reaches ``trip`` A, then the hold (``p_hold``: the main supply's loop, ``duty`` and
     ``period`` s per point) until the armature seats, or ``until`` s after switch-on (per
@@ -127,7 +139,13 @@ def boosted_pull_in(p_boost: ArmatureParams, p_hold: ArmatureParams, trip, duty,
     (the next period's duty at points ``k`` from the current ``i`` A converted in the period
     that ends); ``duty`` is then the first period's. Where the armature falls back to the
     open stop under it, it is taken as not seated (STALLED at the full stroke).
+
+    ``mixed``: a full bridge's mixed-decay hold (its arrays per point; a stiff main supply),
+    each off-time fast for its ``fraction`` first (module docstring); ``None``: the hold's
+    off path throughout.
     """
+    if mixed is not None and p_hold.droops:
+        raise ValueError("a mixed-decay hold's flights take a stiff main supply")
     n = len(p_hold)
     pin = pull_in(p_boost, trip=trip, rtol=rtol)
     out = {k: np.array(getattr(pin, k), copy=True) for k in
@@ -147,7 +165,8 @@ def boosted_pull_in(p_boost: ArmatureParams, p_hold: ArmatureParams, trip, duty,
             y0 = np.concatenate([y0, u0[None, k]])
         got = _hold_flights(p_hold.take(k), pin.trip_time[k], y0, per_point(duty)[k], per_point(period)[k],
                             per_point(until)[k], top[k], rtol,
-                            None if control is None else _Sub(control, k))
+                            None if control is None else _Sub(control, k),
+                            None if mixed is None else mixed.flat((n,)).at(k))
         if droop:
             seat_bus[k] = got.pop("seat_bus")
             low[:, k] = got.pop("low")
@@ -232,7 +251,7 @@ class _Sub:
 
 
 def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: float,
-                  control=None) -> dict:
+                  control=None, mixed: MixedDecay | None = None) -> dict:
     """The hold after the threshold for points whose armature is open or in flight there
     (``t0`` s, states ``y0``: lambda, x, v, q, sq, and on a drooping main bus its capacitor
     u V) until ``until`` s, all at once: the batched flight
@@ -244,7 +263,8 @@ def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: f
     current at the period's conversion (the flight's state there). Returns the
     :class:`PullInBatch` fields of :func:`boosted_pull_in`; on a drooping bus also
     ``seat_bus`` (V at the seat, NaN where not seated) and ``low`` (2 x N: the lowest bus V
-    and when, s, up to the seat or ``until``)."""
+    and when, s, up to the seat or ``until``). ``mixed``: each off-time fast for its
+    fraction first (the points' fast path ``r_fast``, ``v_fast``), then through ``p``'s."""
     n = len(p)
     t = np.asarray(t0, float).copy()
     y = np.asarray(y0, float).copy()
@@ -271,6 +291,8 @@ def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: f
     # resting on the open stop at the threshold (it came before the motion): free once
     # the flux passes the start current's (the flight's own first step sees to that)
     on = np.ones(n, bool)
+    fast = np.zeros(n, bool)            # in an off-time's fast part (mixed decay)
+    fraction = 0.0 if mixed is None else mixed.fraction
     live = np.ones(n, bool)
     cycle = np.zeros(n)                 # the start of the current PWM period, s after t0
     edge = np.minimum(t + t_on, bound)
@@ -279,7 +301,9 @@ def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: f
     for _ in range(MAX_EDGES):
         if not active.any():
             break
-        fl = fly_mixed(p, t, y, edge, active, on, live, stiff, rtol, **track,
+        p_now = p if mixed is None else dataclasses.replace(
+            p, r_off=np.where(fast, mixed.r_fast, p.r_off), v_off=np.where(fast, mixed.v_fast, p.v_off))
+        fl = fly_mixed(p_now, t, y, edge, active, on, live, stiff, rtol, **track,
                        **({} if control is None else {"query": at, "query_y": sampled}))
         res["steps"] += np.where(active, fl.steps, 0)
         t = np.where(active, fl.t, t)
@@ -321,8 +345,11 @@ def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: f
         res["stall_gap"] = np.where(over, y[1], res["stall_gap"])
         active &= ~over
         turn = at_edge & ~over
+        t_fast = fraction * (period - t_on)
         off = turn & on & (t_on < period)
-        back = turn & ~off
+        # (the fast part's end: on to the slow part, unless the fast part fills the off-time)
+        slow = turn & fast & (t_on + t_fast < period)
+        back = turn & ~off & ~slow
         cycle = np.where(back, cycle + period, cycle)
         if control is not None and back.any():   # the next period's duty from its conversion
             j = np.flatnonzero(back)
@@ -331,9 +358,12 @@ def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: f
             t_on = duty * period
             at = np.where(back, t0 + cycle + control.sample(duty) * period, at)
             sampled[:, j] = np.nan
+        goes_fast = off & (t_fast > 0)
         on = np.where(off, False, np.where(back, True, on))
+        fast = np.where(goes_fast, True, np.where(slow | back, False, fast))
         live = np.where(back, True, live)
-        edge = np.where(off, t0 + cycle + period, np.where(back, t0 + cycle + t_on, edge))
+        edge = np.where(goes_fast, t0 + cycle + t_on + t_fast,
+                        np.where(off | slow, t0 + cycle + period, np.where(back, t0 + cycle + t_on, edge)))
         edge = np.minimum(np.maximum(edge, t), bound)
         stuck = active & (fl.end == BOUND) & ~at_edge     # the step size collapsed
         res["stall_gap"] = np.where(stuck, y[1], res["stall_gap"])
@@ -343,20 +373,24 @@ def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: f
     res["dip_current"] = np.where(res["status"] == SEATED, res["dip_current"], np.nan)
     for j in np.flatnonzero(alone):
         _alone(p.take(j), float(t0[j]), y0[:, j], float(duty[j]), float(period[j]), float(bound[j]),
-               res, j, rtol)
+               res, j, rtol, None if mixed is None else mixed.at([j]))
     return res
 
 
 def _alone(pj: ArmatureParams, t0: float, y0, duty: float, period: float, bound: float, res: dict,
-           j: int, rtol: float) -> None:
+           j: int, rtol: float, mixed: MixedDecay | None = None) -> None:
     """One point's hold from the threshold through :func:`~coildrive.model.armature_sim.simulate`
-    (an armature that fell back to the open stop and may start again), into ``res[...][j]``."""
+    (an armature that fell back to the open stop and may start again), into ``res[...][j]``;
+    ``mixed`` (that point's): the off-times' fast parts through the fast path."""
     from .armature_sim import simulate
 
     opened = y0[1] >= pj.stroke[0] and y0[2] == 0.0
-    tr = simulate(pj, hold_schedule(t0, bound, duty, period), state="open" if opened else "free",
-                  start=y0, live=True, t0=t0, stop=lambda r: r.state == "seated", rtol=rtol,
-                  points=BUS_SAMPLES if pj.droops else 2)
+    fast = None if mixed is None else dataclasses.replace(pj, r_off=np.atleast_1d(mixed.r_fast).astype(float),
+                                                           v_off=np.atleast_1d(mixed.v_fast).astype(float))
+    tr = simulate(pj, hold_schedule(t0, bound, duty, period, 0.0 if mixed is None else mixed.fraction),
+                  state="open" if opened else "free", start=y0, live=True, t0=t0,
+                  stop=lambda r: r.state == "seated", rtol=rtol, points=BUS_SAMPLES if pj.droops else 2,
+                  release_params=fast)
     seated = tr.state == "seated"
     ev = tr.events
     res["status"][j] = SEATED if seated else STALLED

@@ -340,38 +340,6 @@ def trace(t, i0, v0, v_s, r_s, c, r, l, v_d, sink: bool = True):
     return np.maximum(np.where(late, i_b, i_fed), 0.0), np.where(late, v_a + (x - a_b) / c, v_fed)
 
 
-def clamp_decay(i0, v0, v_s, r_s, c, r, l, v_clamp, i_drop=0.0) -> FastDecay:
-    """A clamp across the switch (``[freewheel] type = "clamp"``): after a pulse the coil's
-    current flows on from the drooping bus through the coil into the clamp::
-
-        L di/dt = v - V_clamp - R i
-        C dv/dt = (V_s - v)/R_s - i          i(0) = i0, v(0) = v0
-
-    (``R`` ohm the release loop's, ``V_clamp`` V above every bus). With the bus mirrored,
-    ``u = -v``, this is :func:`decay`'s circuit with ``V_s -> -V_s`` and ``2 V_d ->
-    V_clamp`` (``u0 = -v0`` starts above ``-V_s`` when the pulse has pulled the bus below
-    the source: its falling case), so the same closed form answers, mirrored back: the bus
-    first falls further (the coil draws from the capacitor) to its lowest, ``bus_top``
-    (``bus_max`` the lower of it and ``V_s``), then recovers; ``bus_at_zero`` where the
-    current stops (the bus then relaxes to ``V_s`` through ``R_s C``), ``charge`` ``int i
-    dt`` (the bus gives ``V int i dt``, the clamp takes ``V_clamp int i dt``); ``drop_time``
-    to ``i_drop`` A (a capture's zero level)."""
-    f = decay(i0, -np.asarray(v0, float), i_drop, -np.asarray(v_s, float), r_s, c, r, l,
-              0.5 * np.asarray(v_clamp, float))
-    return dataclasses.replace(f, bus_top=-f.bus_top, bus_max=-f.bus_max, bus_at_zero=-f.bus_at_zero)
-
-
-def clamp_trace(t, i0, v0, v_s, r_s, c, r, l, v_clamp):
-    """The current (A) and the bus (V) ``t`` s into :func:`clamp_decay`'s decay, up to the
-    current's zero (the same closed form; past it the current is 0)."""
-    t = np.asarray(t, float)
-    point = [np.asarray(x, float) for x in (i0, -np.asarray(v0, float), -np.asarray(v_s, float), r_s, c, r, l,
-                                            0.5 * np.asarray(v_clamp, float))]
-    _, _, _, _, at = _fed(*point)
-    i, u = at(t)
-    return np.maximum(i, 0.0), -u
-
-
 def decay_no_sink(i0, v0, i_drop, v_s, r_s, c, r, l, v_d) -> FastDecay:
     """:func:`decay` on a supply that cannot sink (module docstring): with the source
     until the bus reaches ``v_s`` V, then the series RLC circuit into ``C`` alone.

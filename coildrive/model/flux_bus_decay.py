@@ -333,6 +333,32 @@ def fast_decays(coil, i0, starts, i_drop, v_s, r_s, c, r, v_d, sink: bool = True
     return [run(i0, v0, i_drop, v_s, r_s, c, r, branch, v_d) for v0 in starts]
 
 
+def clamp_decay(coil, i0, v0, v_s, r_s, c, r, v_clamp, i_drop=0.0) -> FastDecay:
+    """A clamp across the switch on the drooping bus, whatever the coil (a linear ``L`` H,
+    a flux-linkage curve, an eddy term on either): after a pulse the current flows on from
+    the bus through the coil into the clamp, ``dpsi/dt = v - V_clamp - R i``, ``C dv/dt =
+    (V_s - v)/R_s - i`` (with an eddy term the branch behind the loop's Thevenin pair, the
+    clamp carrying the terminal current and blocking at its zero; ``i0``, ``i_drop``
+    magnetising currents). Mirrored, ``u = -v``, it is :func:`fast_decays`'s circuit with
+    ``V_s -> -V_s`` and ``2 V_d -> V_clamp`` from ``u0 = -v0`` (a bus the pulse has pulled
+    below the source starts above the mirrored one: the falling case of those runs; a linear
+    coil's the closed form of :func:`coildrive.model.bus_decay.decay`); the figures
+    mirrored back: ``bus_top`` the lowest bus while the current flows, ``bus_max`` the lower
+    of it and ``V_s``, ``bus_at_zero`` where the current stops, ``charge`` ``int i dt`` (the
+    terminal current's), ``eddy_energy`` the eddy resistance's loss over the whole decay."""
+    d = fast_decays(coil, i0, [-np.asarray(v0, float)], i_drop, -np.asarray(v_s, float), r_s, c, r,
+                    0.5 * np.asarray(v_clamp, float))[0]
+    return dataclasses.replace(d, bus_top=-d.bus_top, bus_max=-d.bus_max, bus_at_zero=-d.bus_at_zero)
+
+
+def clamp_trace(t, coil, i0, v0, v_s, r_s, c, r, v_clamp):
+    """The terminal current (A) and the bus (V) ``t`` s into :func:`clamp_decay`'s decay of one
+    point, up to the current's zero (:func:`trace` of the mirrored circuit)."""
+    i, u = trace(t, coil, i0, -np.asarray(v0, float), -np.asarray(v_s, float), r_s, c, r,
+                 0.5 * np.asarray(v_clamp, float))
+    return i, -u
+
+
 def trace(t, coil, i0, v0, v_s, r_s, c, r, v_d, sink: bool = True):
     """The terminal current (A) and the bus (V) ``t`` s (an array) into the fast decay of one
     point (scalars) from ``i0`` A (with an eddy term the magnetising current) and the bus at
@@ -354,7 +380,10 @@ def trace(t, coil, i0, v0, v_s, r_s, c, r, v_d, sink: bool = True):
         return bus_decay.eddy_trace(t, i0, v0, v_s, r_s, c, r, float(np.ravel(branch)[0]), v_d, r_e, sink=sink)
     t = np.asarray(t, float)
     one = branch.with_scale(np.asarray(float(np.ravel(branch.scale)[0])))
-    fed, rec, fb = _decay(i0, np.minimum(v0, v_s), np.asarray(0.0), v_s, r_s, c, r, one, v_d, r_e)
+    # (a supply that sinks: from the bus where it is, above the source too -- a clamp's
+    # mirrored decay; one that cannot: the source's circuit only up to the source)
+    fed, rec, fb = _decay(i0, v0 if sink else np.minimum(v0, v_s), np.asarray(0.0), v_s, r_s, c, r, one, v_d,
+                          r_e)
     t_a, blocked = np.inf, False
     if not sink:   # where the bus reaches v_s the feed blocks: the capacitor alone from there
         t0, h, _, _, _, _, u0, u1, du0, du1 = flux_bus.segments(rec)

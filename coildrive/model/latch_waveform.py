@@ -48,7 +48,7 @@ import numpy as np
 
 from ..config import Drive
 from . import boost as boost_model
-from . import bus_decay, eddy, flux_bus, flux_bus_decay
+from . import eddy, flux_bus, flux_bus_decay
 from . import supply as bus_model
 from .eddy import EddyCoil
 from .bridge import boost_return, boost_return_trace
@@ -128,7 +128,8 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
     if clamped is not None:   # a clamp on the drooping bus: the decay draws the capacitor down further
         tz = float(clamped.zero_time)
         t_d = np.linspace(0.0, tz, points + 1)[1:]
-        i_d, bus_d = bus_decay.clamp_trace(t_d, i_top, float(bus[-1]), *_clamp_args(drive, rel))
+        i_d, bus_d = flux_bus_decay.clamp_trace(t_d, rel.inductance, i_top, float(bus[-1]),
+                                                *_clamp_args(drive, rel))   # (the terminal current)
         i_d[-1] = 0.0   # (the zero, to rounding)
     elif drive.supply.boosted and full_bridge(drive):   # back into the boost capacitor, up Q_b's body diode
         tz = float(boost_return(i_top, float(v_c[-1]), *return_args(drive, rel)).zero_time)
@@ -148,7 +149,7 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
         i_d[-1] = 0.0   # (the zero, to rounding)
     if r_e is not None:   # the magnetising currents to the terminal current (model.eddy): on, then freewheeling
         i_on = eddy.terminal(i_on, bus, r_on, r_e)
-        if fast is None:
+        if fast is None and clamped is None:
             i_d = np.maximum(eddy.terminal(i_d, -v_off, r_off, r_e), 0.0)
     t = np.concatenate([t_on, t_pulse + t_d])
     i = np.concatenate([i_on, i_d])
@@ -186,20 +187,22 @@ def fast_decay_after(drive: Drive, rel, i0: float, v0: float, i_drop: float = 0.
 
 
 def clamp_decay_after(drive: Drive, rel, i0: float, v0: float, i_drop: float = 0.0):
-    """A clamp across the switch on the drooping bus (a linear coil, config): the decay of
-    ``i0`` A from the bus at ``v0`` V at the pulse's end, the current flowing on from the
-    bus through the coil into the clamp (:func:`coildrive.model.bus_decay.clamp_decay`,
+    """A clamp across the switch on the drooping bus (a linear coil, a flux-linkage curve or
+    an eddy term, whose ``i0`` and ``i_drop`` are magnetising currents): the decay of ``i0``
+    A from the bus at ``v0`` V at the pulse's end, the current flowing on from the bus
+    through the coil into the clamp (:func:`coildrive.model.flux_bus_decay.clamp_decay`,
     ``drop_time`` to ``i_drop`` A), or ``None`` on a stiff bus or another freewheel.
     ``rel``: the release loop at one point."""
     if not (drive.supply.droops and drive.freewheel.type == "clamp"):
         return None
-    return bus_decay.clamp_decay(i0, v0, *_clamp_args(drive, rel), i_drop)
+    return flux_bus_decay.clamp_decay(rel.inductance, i0, v0, *_clamp_args(drive, rel), i_drop)
 
 
 def _clamp_args(drive: Drive, rel) -> tuple:
+    """``(V_s, R_s, C, R_off, V_clamp)`` of the release loop ``rel`` at one point."""
     s = drive.supply
     return tuple(float(np.ravel(x)[0]) for x in (rel.supply, s.source_resistance, s.capacitance, rel.r_off,
-                                                 rel.inductance, rel.v_off + rel.supply))
+                                                 rel.v_off + rel.supply))
 
 
 def fast_trace(drive: Drive, rel, i0: float, v0: float, t):
