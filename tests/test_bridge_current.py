@@ -57,7 +57,11 @@ def _variant(tmp_path, *edits, name="cm.toml", board=None):
 
 @pytest.fixture(scope="module")
 def hysteretic(tmp_path_factory):
-    path = _variant(tmp_path_factory.mktemp("bcm"))
+    return designed(_variant(tmp_path_factory.mktemp("bcm")))
+
+
+def designed(path):
+    """``(drive, path, design JSON)`` of the drive file ``path`` (`design --json`, a subprocess)."""
     r = run_cli("design", str(path), "--json")
     assert r.returncode == 0, r.stderr + r.stdout[-2000:]
     return load_drive(path), path, json.loads(r.stdout)
@@ -256,7 +260,7 @@ def device_checks(d, tmp_path):
 
 @pytest.mark.parametrize("edit, key, fragment", [
     (('frequency = "20 kHz"\nmode = "current"\n', 'frequency = "20 kHz"\nmode = "current"\nfast_fraction = 0.3\n'),
-     "hold.fast_fraction", "current-mode hold decays slowly"),
+     "hold.fast_fraction", 'control = "hysteretic" (its off-times end at the lower threshold'),
 ])
 def test_what_a_current_mode_bridge_refuses_is_one_line(tmp_path, edit, key, fragment):
     path = _variant(tmp_path, edit)

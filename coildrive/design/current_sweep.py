@@ -48,12 +48,13 @@ REFINE_STEPS = 24
 
 
 def steady_state(drive: Drive, lp, lower_a, upper_a, off_time, delay) -> CurrentModeSteadyState:
-    """The current-mode steady state for the drive's control at loop ``lp``."""
+    """The current-mode steady state for the drive's control at loop ``lp`` (a full bridge's
+    fixed off-time with mixed decay: ``lp.mixed``)."""
     if drive.hold.control == "hysteretic":
         return hysteretic_steady_state(lower_a, upper_a, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
                                        lp.inductance, delay)
     return off_time_steady_state(upper_a, off_time, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
-                                 lp.inductance, delay)
+                                 lp.inductance, delay, lp.mixed)
 
 
 @dataclass(frozen=True)

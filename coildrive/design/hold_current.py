@@ -265,7 +265,7 @@ def _size_off_time(drive: Drive, grid: CornerGrid, peak_a: float) -> float:
     f_lo, f_hi, _ = allowed_range(drive)
     t = np.geomspace(0.01 / max(f_hi, drive.hold.frequency), 1.0 / min(f_lo, drive.hold.frequency), 400)
     ss = off_time_steady_state(peak_a, t[:, None], lp.v_on, lp.r_on, lp.r_off, lp.v_off,
-                               lp.inductance, drive.hold.sense_delay)
+                               lp.inductance, drive.hold.sense_delay, lp.mixed)
     return float(t[_pick(drive, ss.frequency, ss.regulated)])
 
 
@@ -368,7 +368,8 @@ def current_losses(drive: Drive, res: PointResults, cm: CurrentModeSteadyState) 
     sw = drive.switch
     return element_powers(drive, res.loop, cm.charge_on, cm.square_on, cm.charge_off,
                           cm.square_off, 1.0 / cm.period, cm.i_min, cm.i_max, cm.dcm,
-                          cm.frequency, sw.rise_time, sw.fall_time)
+                          cm.frequency, sw.rise_time, sw.fall_time, charge_fast=cm.charge_fast,
+                          square_fast=cm.square_fast)
 
 
 def _split_saving(drive: Drive, grid: CornerGrid, res: PointResults, cm: CurrentModeSteadyState,
@@ -791,18 +792,32 @@ def actuation(design: Design, supply: float, coil_temp: float, hold_time: float,
 
 def threshold_hold(th: Thresholds, t: float, i: float, end: float, v: float, r_on: float,
                    r_off: float, v_off: float, ind, points: int, ts: list, cs: list,
-                   ons: list) -> tuple[float, float, list]:
+                   ons: list, mixed=None, marks: list | None = None) -> tuple[float, float, list]:
     """The current-mode hold ``th`` from ``t`` s and ``i`` A (the end of the peak) until the
     first turn-off edge at or after ``end`` s, in closed-form segments of inductance
     ``ind`` (H, or one point's curve), every switch edge a sample: each segment's samples
     (s, A, 0/1) appended to ``ts``, ``cs``, ``ons``. Returns ``(t_off s, i_off A,
     [start s, current A] of the last on-time or [])``. Where the threshold is out of reach
-    (``V / R_on`` at or below it) the switch stays on to ``end``."""
+    (``V / R_on`` at or below it) the switch stays on to ``end``.
+
+    ``mixed`` (a full bridge's :class:`~coildrive.model.pwm.MixedDecay` at this point, the
+    fixed off-time, a linear coil): each off-time's first ``mixed.fraction`` decays fast
+    (all four open; a sample where the current dies), the rest slowly; ``marks`` then gets,
+    per segment appended, a 2-row array: the current flowing in the fast path, all four open."""
     a = v / r_on   # the current the on-time rises toward, A
     hyst = th.control == "hysteretic"
     upper, lower, d = th.upper_a, th.lower_a, th.delay_s
     big = 40 * points
     last_on = []
+    seg = None
+    if mixed is not None:
+        from ..model.mixed_waveform import LinearSegments
+
+        seg = LinearSegments(v, r_on, r_off, float(ind), mixed)
+
+    def mark(n, flowing=None):
+        if marks is not None:
+            marks.append(np.zeros((2, n), bool) if flowing is None else np.stack([flowing, np.ones(n, bool)]))
 
     def on_seg(t0, i0, dur):
         last_on[:] = [t0, i0]
@@ -810,6 +825,7 @@ def threshold_hold(th: Thresholds, t: float, i: float, end: float, v: float, r_o
         ts.append(t0 + x)
         cs.append(rise_current(x, i0, v, r_on, ind))
         ons.append(np.ones_like(x))
+        mark(x.size)
         return t0 + dur, float(cs[-1][-1])
 
     def off_seg(t0, i0, dur, n=points):
@@ -817,6 +833,18 @@ def threshold_hold(th: Thresholds, t: float, i: float, end: float, v: float, r_o
         ts.append(t0 + x)
         cs.append(decay_current(x, i0, r_off, v_off, ind))
         ons.append(np.zeros_like(x))
+        mark(x.size)
+        return t0 + dur, float(cs[-1][-1])
+
+    def fast_seg(t0, i0, dur, n=points):
+        x = np.linspace(0.0, dur, n + 1)[1:]
+        tz = float(seg.fast_zero(i0))
+        if tz < dur:   # the body diodes block: a sample at the zero
+            x = np.sort(np.append(x, tz))
+        ts.append(t0 + x)
+        cs.append(seg.fast(i0, x))
+        ons.append(np.zeros_like(x))
+        mark(x.size, (cs[-1] > 0) | (x <= tz))
         return t0 + dur, float(cs[-1][-1])
 
     regulated = upper < a
@@ -824,8 +852,14 @@ def threshold_hold(th: Thresholds, t: float, i: float, end: float, v: float, r_o
     while t < end and regulated:
         # off: to the lower threshold (+ delay) or for the fixed off time; the first one,
         # down from the peak, gets as many samples as the peak
-        dur = float(decay_time(lower, i, r_off, v_off, ind)) + d if hyst else th.off_time_s
-        t, i = off_seg(t, i, dur, big if first else points)
+        n = big if first else points
+        if seg is not None:   # mixed decay: the fast part, then the slow one
+            t_fast = mixed.fraction * th.off_time_s
+            t, i = fast_seg(t, i, t_fast, n)
+            t, i = off_seg(t, i, th.off_time_s - t_fast, n)
+        else:
+            dur = float(decay_time(lower, i, r_off, v_off, ind)) + d if hyst else th.off_time_s
+            t, i = off_seg(t, i, dur, n)
         first = False
         # on: to the upper/peak threshold, + delay (none while the current is still above
         # the peak threshold after the peak phase: the switch turns straight off again)
@@ -848,12 +882,13 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
     on-time, or after the turn-off for a negative lead; a ``bypass_on`` column). On a
     full bridge the off segments recirculate through the two low-side switches (slow
     decay) and the release opens all four (fast decay into the bus): the bridge's
-    per-switch columns and coil voltage.
+    per-switch columns and coil voltage; with mixed decay (the fixed off-time) each
+    off-time's first ``hold.fast_fraction`` opens all four too.
 
     With an ``[armature]`` the peak is the moving armature's run and the hold the
     thresholds' segments on the seated coil (:func:`_armature_actuation`)."""
-    from ..model.waveform import (boost_columns, one_point, peak_samples, release_waveform,
-                                  split_release, split_waveform)
+    from ..model.waveform import (boost_columns, mixed_columns, one_point, peak_samples,
+                                  release_waveform, split_release, split_waveform)
 
     if drive.armature is not None:
         return _armature_actuation(drive, th, supply, coil_temp, peak_time, hold_time, r_factor,
@@ -877,8 +912,10 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
     big = 40 * points
     ts, cs, ons = [], [], []
     t, i = peak_time, peak_samples(peak_time, v, r_on, ind, big, ts, cs, ons, drive)
+    n_peak = sum(len(x) for x in ts)
+    marks = [] if lp.mixed is not None else None
     t, i, last_on = threshold_hold(th, t, i, peak_time + hold_time, v, r_on, r_off, v_off, ind,
-                                   points, ts, cs, ons)
+                                   points, ts, cs, ons, lp.mixed, marks)
     t_off_edge = t
     if split_decay(drive):
         fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
@@ -892,6 +929,9 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
     # a full bridge: the hold's off-times decayed slowly (lp), the release decays fast
     fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") if two_paths(drive) else None
     w = release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_off_edge, i, big, label, fast)
+    if marks:   # a mixed-decay hold: its fast parts all four open
+        m = np.concatenate(marks, axis=1)
+        w = mixed_columns(drive, w, fast, supply, t_off_edge, n_peak, m[0], m[1])
     return boost_columns(drive, w, supply, peak_time, r_on, ind)
 
 

@@ -22,6 +22,19 @@ timer:
   while the switch is on, so it works with the sense resistor under the switch too,
   and each period's bottom depends on the peak alone (no sub-harmonic instability).
 
+Mixed decay on a full bridge (``mixed``, a :class:`~coildrive.model.pwm.MixedDecay`; the
+fixed off-time control, a linear coil): each off-time's first ``t_f = m t_off`` decays
+fast (all four switches open, ``L di/dt = -(R_f i + V_f)``, ``V_f = V_bus + 2 V_d``, the
+body diodes blocking at zero), the rest ``t_s = (1 - m) t_off`` slowly through the loop's
+``R_off`` (``V_off = 0``). The off-time still starts at the peak, so the orbit is closed
+form with no fixed point::
+
+    i_f    = (I_top + F) e^(-t_f R_f / L) - F,  F = V_f / R_f   (0 if the current dies first)
+    bottom = i_f e^(-t_s R_off / L)
+
+and ``t_on`` as above; ``charge_fast``/``square_fast`` are the fast segment's integrals
+(the bus takes ``V_bus x charge_fast`` back every period).
+
 ``delay`` is the time from a threshold crossing to the switch edge (comparator, ADC
 conversion, interrupt latency): the current runs on for that long past each threshold,
 so the ripple's top is ``A + (I_hi - A) e^(-delay/tau_on)`` and the bottom the decay
@@ -76,7 +89,7 @@ import numpy as np
 from . import eddy, flux
 from .eddy import EddyCoil
 from .flux import FluxCoil
-from .pwm import PwmSteadyState
+from .pwm import MixedDecay, PwmSteadyState
 from .rl import decay_current, decay_integrals, decay_time, rise_current, rise_integrals, rise_time
 
 
@@ -111,6 +124,8 @@ class CurrentModeSteadyState:
     terminal_max: np.ndarray | None = None
     eddy_energy: np.ndarray | None = None
     chatter: np.ndarray | None = None
+    charge_fast: np.ndarray | float = 0.0
+    square_fast: np.ndarray | float = 0.0
 
     def as_pwm(self) -> PwmSteadyState:
         """The same steady state in the voltage-mode container (same field meanings), so
@@ -120,7 +135,8 @@ class CurrentModeSteadyState:
                               period=self.period, charge_on=self.charge_on, square_on=self.square_on,
                               charge_off=self.charge_off, square_off=self.square_off,
                               terminal_min=self.terminal_min, terminal_max=self.terminal_max,
-                              eddy_energy=self.eddy_energy)
+                              eddy_energy=self.eddy_energy, charge_fast=self.charge_fast,
+                              square_fast=self.square_fast)
 
 
 def _unregulated(bottom, top, t_on, t_off, conduction, a, regulated):
@@ -135,7 +151,6 @@ def _finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, indu
     a = v_on / r_on
     bottom, top, t_on, t_off, conduction = _unregulated(bottom, top, t_on, t_off, conduction, a,
                                                         regulated)
-    period = t_on + t_off
     if isinstance(inductance, FluxCoil):
         # the curve's segments between their known end currents (no current-after-time
         # search): on from the bottom to the top, off from the top back to the bottom
@@ -150,6 +165,13 @@ def _finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, indu
     else:
         q_on, s_on = rise_integrals(t_on, bottom, v_on, r_on, inductance)
         q_off, s_off = decay_integrals(conduction, top, r_off, v_off, inductance)
+    return _state(bottom, top, t_on, t_off, conduction, q_on, s_on, q_off, s_off, regulated)
+
+
+def _state(bottom, top, t_on, t_off, conduction, q_on, s_on, q_off, s_off, regulated,
+           **extra) -> CurrentModeSteadyState:
+    """The steady state from the orbit's ends, times and integrals (``extra``: more fields)."""
+    period = t_on + t_off
     mean = (q_on + q_off) / period
     rms = np.sqrt(np.maximum((s_on + s_off) / period, 0.0))
     frequency = np.where(regulated, 1.0 / period, 0.0)
@@ -157,7 +179,7 @@ def _finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, indu
         i_min=bottom, i_max=top, mean=mean, rms=rms, ripple=top - bottom, t_on=t_on, t_off=t_off,
         period=period, frequency=frequency, duty=t_on / period, regulated=regulated,
         dcm=regulated & (conduction < t_off), conduction_off=conduction, charge_on=q_on,
-        square_on=s_on, charge_off=q_off, square_off=s_off)
+        square_on=s_on, charge_off=q_off, square_off=s_off, **extra)
 
 
 def _broadcast(values, inductance):
@@ -207,8 +229,11 @@ def hysteretic_steady_state(i_lo, i_hi, v_on, r_on, r_off, v_off, inductance,
 
 
 def off_time_steady_state(i_peak, t_off, v_on, r_on, r_off, v_off, inductance,
-                          delay=0.0) -> CurrentModeSteadyState:
-    """Peak threshold ``i_peak`` A, fixed off time ``t_off`` s, ``delay`` s to turn off."""
+                          delay=0.0, mixed: MixedDecay | None = None) -> CurrentModeSteadyState:
+    """Peak threshold ``i_peak`` A, fixed off time ``t_off`` s, ``delay`` s to turn off;
+    ``mixed``: a full bridge's mixed decay (a linear coil; module docstring)."""
+    if mixed is not None and mixed.fraction > 0:
+        return _mixed_off_time(i_peak, t_off, v_on, r_on, r_off, inductance, delay, mixed)
     i_peak, t_off, v_on, r_on, r_off, v_off, delay, inductance = _broadcast(
         (i_peak, t_off, v_on, r_on, r_off, v_off, delay), inductance)
     if isinstance(inductance, EddyCoil):
@@ -224,6 +249,36 @@ def off_time_steady_state(i_peak, t_off, v_on, r_on, r_off, v_off, inductance,
     t_on = rise_time(pk, np.minimum(bottom, pk), v_on, r_on, inductance) + delay
     return _finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, inductance,
                    regulated)
+
+
+def _mixed_off_time(i_peak, t_off, v_on, r_on, r_off, inductance, delay,
+                    mixed: MixedDecay) -> CurrentModeSteadyState:
+    """:func:`off_time_steady_state` with a full bridge's mixed decay: the fast part, then
+    the slow one (no opposing voltage), each the closed-form RL segment."""
+    if isinstance(inductance, (FluxCoil, EddyCoil)):
+        raise ValueError("a current-mode mixed-decay hold is modelled for a linear coil")
+    i_peak, t_off, v_on, r_on, r_off, delay, ind, r_f, v_f = np.broadcast_arrays(
+        *(np.asarray(x, float) for x in (i_peak, t_off, v_on, r_on, r_off, delay, inductance,
+                                         mixed.r_fast, mixed.v_fast)))
+    a = v_on / r_on
+    regulated = i_peak < a
+    pk = np.where(regulated, i_peak, 0.5 * a)
+    top = rise_current(delay, pk, v_on, r_on, ind)                     # run-on past I_pk
+    t_fast = mixed.fraction * t_off
+    t_slow = t_off - t_fast
+    to_zero = decay_time(0.0, top, r_f, v_f, ind)
+    dies = to_zero <= t_fast                                           # the body diodes block
+    i_fast = np.where(dies, 0.0, np.maximum(decay_current(t_fast, top, r_f, v_f, ind), 0.0))
+    bottom = np.where(dies, 0.0, decay_current(t_slow, i_fast, r_off, 0.0, ind))
+    conduction = np.where(dies, to_zero, t_off)
+    t_on = rise_time(pk, np.minimum(bottom, pk), v_on, r_on, ind) + delay
+    bottom, top, t_on, t_off, conduction = _unregulated(bottom, top, t_on, t_off, conduction, a,
+                                                        regulated)
+    q_on, s_on = rise_integrals(t_on, bottom, v_on, r_on, ind)
+    q_f, s_f = decay_integrals(np.where(regulated, np.minimum(t_fast, to_zero), 0.0), top, r_f, v_f, ind)
+    q_s, s_s = decay_integrals(np.where(regulated & ~dies, t_slow, 0.0), i_fast, r_off, 0.0, ind)
+    return _state(bottom, top, t_on, t_off, conduction, q_on, s_on, q_f + q_s, s_f + s_s, regulated,
+                  charge_fast=q_f, square_fast=s_f)
 
 
 # ------------------------------------------------------------------- an eddy-current term
