@@ -134,6 +134,11 @@ class DriverView:
         else:
             self.threshold_low, self.threshold_high = f"{m}_HOLD_LOWER_CODE", f"{m}_HOLD_UPPER_CODE"
         self.off_type = c_uint_type(max(cm.off_ticks, 0x100)) if self.off_time else "uint16_t"
+        #: mixed decay in a PWM hold (the fast part's end with each compare: port_fast_end),
+        #: or under the current mode's fixed off-time (the one-shot times the fast part with
+        #: all four open, then the slow rest: the threshold and off-timer handlers)
+        self.mixed_pwm = self.mixed and cm is None
+        self.mixed_off = self.mixed and self.off_time
         self.split = d.split_decay is not None
         self.armature = d.armature is not None and all(
             math.isfinite(x) for x in (d.armature.seat_time_min_s, d.armature.seat_time_s))

@@ -188,9 +188,11 @@ def _topology_constants(d: Design, m: str) -> tuple[list[Constant], str]:
     out = [Constant(f"{m}_TOPOLOGY_{name.upper()}", number, f"switch topology: {name.replace('_', ' ')}")
            for name, number in TOPOLOGY_NUMBERS.items()]
     if t.bridge is not None and t.bridge.hold_decay == "mixed":
+        how = ("the current-mode one-shot times HOLD_OFF_FAST_TICKS, then HOLD_OFF_SLOW_TICKS"
+               if d.hold.current_mode is not None else
+               "fast counts of each off-time = ((PERIOD - compare) x this + 32768) >> 16")
         out.append(Constant(f"{m}_HOLD_FAST_Q16", round(t.bridge.hold_fast_fraction * 65536),
-                            f"mixed decay: fast counts of each off-time = ((PERIOD - compare) x this "
-                            f"+ 32768) >> 16 ({t.bridge.hold_fast_fraction:.4g} of it)"))
+                            f"mixed decay: {how} ({t.bridge.hold_fast_fraction:.4g} of it)"))
     return out, f"{m}_TOPOLOGY_{t.name.upper()}"
 
 
@@ -305,12 +307,20 @@ def _current_header_constants(design: Design, macro: str) -> list[Constant]:
             Constant(f"{m}_HOLD_LOWER_CODE", r.lower_code, f"switch on below {r.lower_a:.4g} A"),
             Constant(f"{m}_HOLD_UPPER_CODE", r.upper_code, f"switch off at or above {r.upper_a:.4g} A"),
         ]
-    return [
+    out = [
         Constant(f"{m}_HOLD_OFF_TIME", 1, "current-mode hold: peak threshold + fixed off time"),
         Constant(f"{m}_HOLD_PEAK_CODE", r.upper_code, f"switch off at or above {r.upper_a:.4g} A"),
         Constant(f"{m}_HOLD_OFF_PRESCALER", r.off_prescaler, "off-time timer divide ratio"),
         Constant(f"{m}_HOLD_OFF_TICKS", r.off_ticks, f"off time {r.off_time_s * 1e6:.5g} us"),
     ]
+    if r.off_fast_ticks is not None:   # a full bridge's mixed decay: the one-shot twice
+        tick = r.off_time_s / r.off_ticks
+        slow = r.off_ticks - r.off_fast_ticks
+        out += [Constant(f"{m}_HOLD_OFF_FAST_TICKS", r.off_fast_ticks,
+                         f"mixed decay: each off-time's fast part, all four open ({r.off_fast_ticks * tick * 1e6:.5g} us)"),
+                Constant(f"{m}_HOLD_OFF_SLOW_TICKS", slow,
+                         f"then its slow rest, Q2 + Q4 ({slow * tick * 1e6:.5g} us; 0: none)")]
+    return out
 
 
 def _current_relabel_fallback(design: Design, macro: str, constants: list) -> list:
@@ -352,7 +362,10 @@ def _current_header_checks(design: Design, macro: str) -> list[tuple[str, str]]:
             (f"{m}_HOLD_OFF_TICKS < 2 || {m}_HOLD_OFF_TICKS - 1U > {m}_TIMER_COUNTER_MAX",
              "off time does not fit the timer counter"),
             (f"{m}_HOLD_OFF_PRESCALER < 1 || {m}_HOLD_OFF_PRESCALER > {m}_TIMER_PRESCALER_MAX",
-             "off-time prescaler outside the timer's range")]
+             "off-time prescaler outside the timer's range")] + ([] if r.off_fast_ticks is None else [
+            (f"{m}_HOLD_OFF_FAST_TICKS < 2 || {m}_HOLD_OFF_FAST_TICKS + {m}_HOLD_OFF_SLOW_TICKS != "
+             f"{m}_HOLD_OFF_TICKS || ({m}_HOLD_OFF_SLOW_TICKS > 0 && {m}_HOLD_OFF_SLOW_TICKS < 2)",
+             "mixed decay: the off-time's fast and slow parts do not fit the one-shot")])
 
 
 # --------------------------------------------------------------------------- closed loop

@@ -671,7 +671,16 @@ def _mode_result(drive: Drive, th: Thresholds, grid: CornerGrid, cm: CurrentMode
         allowed_min_frequency_hz=f_lo, allowed_max_frequency_hz=f_hi, allowed_max_source=f_src,
         min_duty=duties[0], max_duty=duties[1],
         shortest_segment_s=shortest, regulated_corners=int(np.sum(reg)),
-        corners=len(grid))
+        corners=len(grid), off_fast_ticks=fast_ticks(drive, th))
+
+
+def fast_ticks(drive: Drive, th: Thresholds) -> int | None:
+    """A full bridge's mixed decay under the fixed off-time: the off-timer counts of each
+    off-time's fast part, ``round(fast_fraction x off_ticks)`` (the firmware's one-shot
+    times the fast part, then the rest); ``None`` otherwise."""
+    if th.control == "hysteretic" or not (full_bridge(drive) and drive.hold.fast_fraction > 0):
+        return None
+    return int(round(drive.hold.fast_fraction * th.off_ticks))
 
 
 def _current_checks(drive: Drive, th: Thresholds, r: CurrentModeResult, adc, res: PointResults,
@@ -737,6 +746,8 @@ def _current_checks(drive: Drive, th: Thresholds, r: CurrentModeResult, adc, res
                   f"off time {th.off_time_s * 1e6:.5g} us = {th.off_ticks} ticks at prescaler "
                   f"{th.off_prescaler} of the {t.clock:.6g} Hz timer, for {th.off_time_target_s * 1e6:.5g} us "
                   f"(error {err:+.3%}, allowed {drive.hold.frequency_tolerance:.2%})"))
+    if r.off_fast_ticks is not None:
+        out.append(_fast_timer_check(drive, th, r.off_fast_ticks))
     sample = 1.0 / drive.board.adc.sample_rate
     seg_ok = th.delay_s >= sample or r.shortest_segment_s >= MIN_SAMPLES_PER_SEGMENT * sample
     add(Check("current_mode_sampling", bool(seg_ok),
@@ -746,6 +757,23 @@ def _current_checks(drive: Drive, th: Thresholds, r: CurrentModeResult, adc, res
                  "choice): a sampled threshold trips up to one sample late; give hold.sense_delay "
                  "(e.g. one sample period) or use a comparator"), severity="warning"))
     return out
+
+
+def _fast_timer_check(drive: Drive, th: Thresholds, fast: int) -> Check:
+    """Mixed decay under the fixed off-time: the one-shot times the fast part (``fast``
+    counts), then the slow rest; each at least two counts (as the off-time), or the slow
+    rest none (a fraction of 1). The model takes ``fast_fraction x t_off``: the rounding
+    to whole counts is reported, and fails where it is beyond the frequency tolerance."""
+    slow = th.off_ticks - fast
+    err = (fast / th.off_ticks - drive.hold.fast_fraction) if th.off_ticks else 0.0
+    ok = fast >= 2 and (slow >= 2 or slow == 0) and abs(err) <= drive.hold.frequency_tolerance
+    return Check("current_mode_fast_timer", bool(ok),
+                 f"mixed decay: each off-time's fast part {fast} of its {th.off_ticks} off-timer counts, the "
+                 f"slow rest {slow} (fast_fraction {drive.hold.fast_fraction:g}; the counts give "
+                 f"{fast / max(th.off_ticks, 1):.5g}, {err:+.3g} of the off-time, allowed "
+                 f"{drive.hold.frequency_tolerance:.2%})" + ("" if ok else " -- each part needs at least 2 "
+                                                              "counts and the rounding within the tolerance: "
+                                                              "lengthen hold.off_time or change fast_fraction"))
 
 
 def _step_check(drive: Drive, th: Thresholds, cm: CurrentModeSteadyState, res: PointResults,
