@@ -233,3 +233,59 @@ def test_compiled_driver_in_the_loop_passes_check(mixed, tmp_path):
     (the fast part whole counts: the model takes fast_fraction x t_off) and the release
     within 5 % (plumbing: the model is the design's)."""
     compiled_loop_checks(design(mixed[0]), tmp_path, 2e-3)
+
+
+def test_a_system_files_channel_refuses_it_in_one_line(tmp_path):
+    """Not yet on a system file's shared rail: one line naming the key, exit 2."""
+    from rail_reference import manifold_copy
+    from test_system_bridge import BRIDGE
+
+    path = manifold_copy(tmp_path)
+    purge = tmp_path / "purge-valve-24v.toml"
+    text = purge.read_text().split("[freewheel]")[0]
+    purge.write_text(text.replace("frequency_tolerance = 0.03\n", 'frequency_tolerance = 0.03\nmode = "current"\n'
+                                  'control = "off_time"\nfast_fraction = 0.3\n') + BRIDGE)
+    r = run_cli("design", str(path))
+    assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1, r.stderr
+    assert "hold.fast_fraction" in r.stderr and "system file" in r.stderr
+
+
+@pytest.mark.ngspice
+@pytest.mark.parametrize("inline", [False, True], ids=["common-return", "inline"])
+def test_off_time_mixed_orbit_drives_the_ngspice_bridge_to_its_threshold(tmp_path, inline):
+    """ngspice (batch mode): the element-level bridge of tests/test_reference_ngspice_bridge.py
+    (voltage-controlled switches with their body diodes, the bus behind an ammeter) driven
+    with the orbit's gate pattern -- Q1 + Q4 for the model's on-time, all four open for
+    ``m t_off``, Q2 + Q4 for the rest of the fixed off-time -- from the model's bottom: the
+    current the on-time ends at is the peak threshold (so the model's on-time, and with the
+    timed off-time its switching frequency, is ngspice's), the bottom, the mean and the
+    energy back into the supply per period within 1 %."""
+    from test_reference_ngspice_bridge import (EDGE, L_COIL, R_COIL, R_SENSE, R_SW, STAGGER, V_D, V_SUP,
+                                               _mixed_gates, _netlist)
+    from ngspice_run import run
+
+    peak, t_off, frac = 0.4, 40e-6, 0.3
+    r_on = R_COIL + 2 * R_SW + R_SENSE
+    r_slow = R_COIL + 2 * R_SW + (R_SENSE if inline else 0.0)
+    ss = off_time_steady_state(peak, t_off, V_SUP, r_on, r_slow, 0.0, L_COIL, 0.0,
+                               MixedDecay(frac, R_COIL + R_SENSE, V_SUP + 2 * V_D))
+    t_on, period = float(ss.t_on), float(ss.period)
+    t_fast = frac * t_off
+    n, step = 4, period / 4000
+    t0 = (n - 1) * period
+    a, b = f"from={t0!r} to={n * period!r}", f"from={t0!r} to={n * period - step!r}"
+    fast = f"from={t0 + t_on + EDGE!r} to={t0 + t_on + t_fast + 2 * STAGGER!r}"
+    measures = ["let back = -v(bus) * i(VFEED)",
+                f"meas tran imax MAX i(VM) {a}", f"meas tran imin MIN i(VM) {b}",
+                f"meas tran iavg AVG i(VM) {a}", f"meas tran eback INTEG back {fast}"]
+    text = _netlist("bridge-cm-mixed", _mixed_gates(t_on, t_fast, period), n * period, step, measures,
+                    inline=inline).replace("IC=0\n", f"IC={float(ss.i_min)!r}\n")
+    res = run(tmp_path, "bridge-cm-mixed", text)
+    print(f"current-mode mixed orbit vs ngspice: top {peak:.6e}/{res['imax']:.6e}, bottom {float(ss.i_min):.6e}/"
+          f"{res['imin']:.6e}, mean {float(ss.mean):.6e}/{res['iavg']:.6e} A, back "
+          f"{V_SUP * float(ss.charge_fast):.6e}/{res['eback']:.6e} J")
+    assert not bool(ss.dcm) and float(ss.i_max) == pytest.approx(peak)
+    assert res["imax"] == pytest.approx(peak, rel=0.01), res["imax"]
+    assert res["imin"] == pytest.approx(float(ss.i_min), rel=0.01), (res["imin"], float(ss.i_min))
+    assert res["iavg"] == pytest.approx(float(ss.mean), rel=0.01), (res["iavg"], float(ss.mean))
+    assert res["eback"] == pytest.approx(V_SUP * float(ss.charge_fast), rel=0.01)
