@@ -260,8 +260,8 @@ def test_off_time_mixed_orbit_drives_the_ngspice_bridge_to_its_threshold(tmp_pat
     current the on-time ends at is the peak threshold (so the model's on-time, and with the
     timed off-time its switching frequency, is ngspice's), the bottom, the mean and the
     energy back into the supply per period within 1 %."""
-    from test_reference_ngspice_bridge import (EDGE, L_COIL, R_COIL, R_SENSE, R_SW, STAGGER, V_D, V_SUP,
-                                               _mixed_gates, _netlist)
+    from test_reference_ngspice_bridge import (L_COIL, R_COIL, R_SENSE, R_SW, V_D, V_SUP,
+                                               mixed_orbit_netlist)
     from ngspice_run import run
 
     peak, t_off, frac = 0.4, 40e-6, 0.3
@@ -269,17 +269,8 @@ def test_off_time_mixed_orbit_drives_the_ngspice_bridge_to_its_threshold(tmp_pat
     r_slow = R_COIL + 2 * R_SW + (R_SENSE if inline else 0.0)
     ss = off_time_steady_state(peak, t_off, V_SUP, r_on, r_slow, 0.0, L_COIL, 0.0,
                                MixedDecay(frac, R_COIL + R_SENSE, V_SUP + 2 * V_D))
-    t_on, period = float(ss.t_on), float(ss.period)
-    t_fast = frac * t_off
-    n, step = 4, period / 4000
-    t0 = (n - 1) * period
-    a, b = f"from={t0!r} to={n * period!r}", f"from={t0!r} to={n * period - step!r}"
-    fast = f"from={t0 + t_on + EDGE!r} to={t0 + t_on + t_fast + 2 * STAGGER!r}"
-    measures = ["let back = -v(bus) * i(VFEED)",
-                f"meas tran imax MAX i(VM) {a}", f"meas tran imin MIN i(VM) {b}",
-                f"meas tran iavg AVG i(VM) {a}", f"meas tran eback INTEG back {fast}"]
-    text = _netlist("bridge-cm-mixed", _mixed_gates(t_on, t_fast, period), n * period, step, measures,
-                    inline=inline).replace("IC=0\n", f"IC={float(ss.i_min)!r}\n")
+    text = mixed_orbit_netlist("bridge-cm-mixed", float(ss.t_on), frac * t_off, float(ss.period),
+                               float(ss.i_min), inline)
     res = run(tmp_path, "bridge-cm-mixed", text)
     print(f"current-mode mixed orbit vs ngspice: top {peak:.6e}/{res['imax']:.6e}, bottom {float(ss.i_min):.6e}/"
           f"{res['imin']:.6e}, mean {float(ss.mean):.6e}/{res['iavg']:.6e} A, back "
