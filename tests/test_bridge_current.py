@@ -486,11 +486,16 @@ def test_hysteretic_hold_and_release_match_ngspice(tmp_path, kind):
 def test_firmware_driver_emulate_capture_check_over_a_real_pty(tmp_path, monkeypatch):
     # as a user runs it, each a real subprocess: firmware-driver -> emulate --firmware ->
     # capture -> check, the bridge's hysteretic hold at the low supply with a hot coil
+    pty_check(tmp_path, monkeypatch, _variant(tmp_path))
+
+
+def pty_check(tmp_path, monkeypatch, drive):
+    """firmware-driver -> emulate --firmware -> capture -> check of the drive file ``drive``
+    at 20 V with a 110 degC coil, each a real subprocess: the hold mean and the release pass."""
     from test_firmware_loop import capture
 
     require_tool("gcc")
     monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "cache"))
-    drive = _variant(tmp_path)
     r = run_cli("firmware-driver", str(drive), "--out", str(tmp_path / "fw"))
     assert r.returncode == 0, r.stderr
     out, _ = capture(tmp_path, tmp_path / "fw", "bridge-cm", "--supply", "20", "--coil-temp", "110", drive=drive)

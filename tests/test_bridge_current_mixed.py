@@ -280,3 +280,12 @@ def test_off_time_mixed_orbit_drives_the_ngspice_bridge_to_its_threshold(tmp_pat
     assert res["imin"] == pytest.approx(float(ss.i_min), rel=0.01), (res["imin"], float(ss.i_min))
     assert res["iavg"] == pytest.approx(float(ss.mean), rel=0.01), (res["iavg"], float(ss.mean))
     assert res["eback"] == pytest.approx(V_SUP * float(ss.charge_fast), rel=0.01)
+
+
+@pytest.mark.slow
+def test_firmware_driver_emulate_capture_check_over_a_real_pty(mixed, tmp_path, monkeypatch):
+    """As a user runs it, each a real subprocess: firmware-driver -> emulate --firmware ->
+    capture -> check passes the hold and the release. Plumbing."""
+    from test_bridge_current import pty_check
+
+    pty_check(tmp_path, monkeypatch, mixed[1])
