@@ -1595,11 +1595,12 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
                   supply: Supply, hold: Hold, coil: Coil, armature=None) -> None:
     """What a full bridge needs: its freewheel path is its switches' body diodes (type
     "diode", no split decay: the bridge decays slowly and fast by itself), mixed decay under
-    a fixed, supply-table or closed-loop hold, or a current-mode hold's fixed off-time
-    (``control = "off_time"``: each off-time's first ``fast_fraction`` fast, the rest slow;
-    a linear coil on a stiff main supply, no boost, no ``[armature]`` -- a hysteretic band's
-    off-time, a curve, an eddy term, the drooping bus, a boosted peak and a moving armature
-    are not modelled with it),
+    a fixed, supply-table or closed-loop hold, or a current-mode hold (the fixed off-time:
+    each off-time's first ``fast_fraction`` fast, the rest slow; hysteretic: each off-time
+    fast for a fixed one-shot time, ``fast_fraction`` x the slow-decay off-time at the
+    nominal point; a linear coil on a stiff main supply, no boost, no ``[armature]`` -- a
+    curve, an eddy term, the drooping bus, a boosted peak and a moving armature are not
+    modelled with it),
     and with a supply that cannot sink the returned
     energy, the bulk capacitance. (The supply's ``sink`` and
     ``capacitance`` keys mean nothing to the other topologies, which return no energy.)"""
@@ -1619,9 +1620,7 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
                          "a full bridge decays slowly in the hold and fast at the release by itself: "
                          "expected split_decay left out")
     if hold.regulation == "current" and hold.fast_fraction > 0:
-        why = ("control = \"hysteretic\" (its off-times end at the lower threshold: a fast part in "
-               "them is not modelled)" if hold.control != "off_time" else
-               "a flux-linkage curve" if coil.flux_current else
+        why = ("a flux-linkage curve" if coil.flux_current else
                "an eddy term (coil.eddy_resistance)" if coil.eddy_resistance else
                "the drooping bus (supply.source_resistance)" if supply.droops else
                "a boosted peak (supply.boost)" if supply.boosted else
@@ -1629,8 +1628,8 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
         if why:
             raise InputError(source, "hold.fast_fraction", f"{hold.fast_fraction:g} with hold.mode = "
                              f"\"current\" and {why}: a full bridge's current-mode mixed decay is "
-                             "modelled for control = \"off_time\" on a linear coil (no [armature]) "
-                             "from a stiff main supply, expected 0 or the key left out (or a fixed, supply-table "
+                             "modelled on a linear coil (no [armature]) from a stiff main supply, "
+                             "expected 0 or the key left out (or a fixed, supply-table "
                              "or closed-loop hold)")
     if not supply.sink and not supply.capacitance > 0:
         raise InputError(source, "supply.capacitance", "missing: with sink = false the returned "

@@ -133,12 +133,17 @@ class DriverView:
             self.threshold_low, self.threshold_high = "0U", f"{m}_HOLD_PEAK_CODE"
         else:
             self.threshold_low, self.threshold_high = f"{m}_HOLD_LOWER_CODE", f"{m}_HOLD_UPPER_CODE"
-        self.off_type = c_uint_type(max(cm.off_ticks, 0x100)) if self.off_time else "uint16_t"
+        fast_cm = cm is not None and cm.off_fast_ticks is not None
+        self.off_type = c_uint_type(max(cm.off_ticks or cm.off_fast_ticks, 0x100)) if (
+            self.off_time or fast_cm) else "uint16_t"
         #: mixed decay in a PWM hold (the fast part's end with each compare: port_fast_end),
         #: or under the current mode's fixed off-time (the one-shot times the fast part with
         #: all four open, then the slow rest: the threshold and off-timer handlers)
         self.mixed_pwm = self.mixed and cm is None
         self.mixed_off = self.mixed and self.off_time
+        #: hysteretic with mixed decay: the one-shot (port_off_timer) times each fast part
+        self.mixed_hyst = self.mixed and cm is not None and not self.off_time
+        self.one_shot = self.off_time or self.mixed_hyst
         self.split = d.split_decay is not None
         self.armature = d.armature is not None and all(
             math.isfinite(x) for x in (d.armature.seat_time_min_s, d.armature.seat_time_s))
@@ -272,7 +277,7 @@ CORTEX_CYCLES = {
                   "adc_isr_mixed": 346, "adc_isr_boost_closed_loop": 333, "adc_isr_closed_loop_mixed": 348},
 }
 CORTEX_INSTRUCTIONS = {
-    "cortex-m0plus": {"adc_isr": 176, "pwm_isr": 4, "tick": 373, "threshold_isr": 66,
+    "cortex-m0plus": {"adc_isr": 176, "pwm_isr": 4, "tick": 373, "threshold_isr": 67,
                       "adc_isr_closed_loop": 167, "adc_isr_bridge": 195, "adc_isr_boost": 195,
                       "adc_isr_mixed": 203, "adc_isr_boost_closed_loop": 188, "adc_isr_closed_loop_mixed": 196},
     "cortex-m3": {"adc_isr": 147, "pwm_isr": 2, "tick": 305, "threshold_isr": 54,

@@ -188,8 +188,11 @@ def _topology_constants(d: Design, m: str) -> tuple[list[Constant], str]:
     out = [Constant(f"{m}_TOPOLOGY_{name.upper()}", number, f"switch topology: {name.replace('_', ' ')}")
            for name, number in TOPOLOGY_NUMBERS.items()]
     if t.bridge is not None and t.bridge.hold_decay == "mixed":
+        cm = d.hold.current_mode
         how = ("the current-mode one-shot times HOLD_OFF_FAST_TICKS, then HOLD_OFF_SLOW_TICKS"
-               if d.hold.current_mode is not None else
+               if cm is not None and cm.control != "hysteretic" else
+               "the hysteretic one-shot's HOLD_OFF_FAST_TICKS are this of the nominal slow-decay off-time"
+               if cm is not None else
                "fast counts of each off-time = ((PERIOD - compare) x this + 32768) >> 16")
         out.append(Constant(f"{m}_HOLD_FAST_Q16", round(t.bridge.hold_fast_fraction * 65536),
                             f"mixed decay: {how} ({t.bridge.hold_fast_fraction:.4g} of it)"))
@@ -302,11 +305,17 @@ def _current_header_constants(design: Design, macro: str) -> list[Constant]:
         return []
     m = macro
     if r.control == "hysteretic":
-        return [
+        out = [
             Constant(f"{m}_HOLD_HYSTERETIC", 1, "current-mode hold: hysteretic band"),
             Constant(f"{m}_HOLD_LOWER_CODE", r.lower_code, f"switch on below {r.lower_a:.4g} A"),
             Constant(f"{m}_HOLD_UPPER_CODE", r.upper_code, f"switch off at or above {r.upper_a:.4g} A"),
         ]
+        if r.off_fast_ticks is not None:   # a full bridge's mixed decay: a one-shot for the fast part
+            out += [Constant(f"{m}_HOLD_OFF_PRESCALER", r.off_prescaler, "fast-part one-shot's timer divide ratio"),
+                    Constant(f"{m}_HOLD_OFF_FAST_TICKS", r.off_fast_ticks,
+                             f"mixed decay: each off-time all four open for {r.fast_time_s * 1e6:.5g} us "
+                             "(or to the lower threshold), then Q2 + Q4")]
+        return out
     out = [
         Constant(f"{m}_HOLD_OFF_TIME", 1, "current-mode hold: peak threshold + fixed off time"),
         Constant(f"{m}_HOLD_PEAK_CODE", r.upper_code, f"switch off at or above {r.upper_a:.4g} A"),
@@ -356,7 +365,12 @@ def _current_header_checks(design: Design, macro: str) -> list[tuple[str, str]]:
         return [(f"{m}_HOLD_LOWER_CODE >= {m}_HOLD_UPPER_CODE || {m}_HOLD_LOWER_CODE < 1",
                  "hysteretic thresholds out of order"),
                 (f"{m}_HOLD_UPPER_CODE >= {m}_ADC_OVER_CURRENT_CODE",
-                 "upper hold threshold at or above the over-current threshold")]
+                 "upper hold threshold at or above the over-current threshold")] + (
+            [] if r.off_fast_ticks is None else [
+                (f"{m}_HOLD_OFF_FAST_TICKS < 2 || {m}_HOLD_OFF_FAST_TICKS - 1U > {m}_TIMER_COUNTER_MAX",
+                 "mixed decay: the fast part does not fit the timer counter"),
+                (f"{m}_HOLD_OFF_PRESCALER < 1 || {m}_HOLD_OFF_PRESCALER > {m}_TIMER_PRESCALER_MAX",
+                 "fast-part one-shot's prescaler outside the timer's range")])
     return [(f"{m}_HOLD_PEAK_CODE >= {m}_ADC_OVER_CURRENT_CODE",
              "peak hold threshold at or above the over-current threshold"),
             (f"{m}_HOLD_OFF_TICKS < 2 || {m}_HOLD_OFF_TICKS - 1U > {m}_TIMER_COUNTER_MAX",

@@ -49,7 +49,7 @@ import numpy as np
 from ..config import Drive
 from ..errors import InputError
 from ..model.circuit import full_bridge, loop, split_decay, two_paths
-from ..model.current_mode import (CurrentModeSteadyState, hysteretic_steady_state,
+from ..model.current_mode import (CurrentModeSteadyState, MixedPath, hysteretic_steady_state,
                                   off_time_steady_state)
 from ..model.eddy import EddyCoil
 from ..model.flux import FluxCoil
@@ -203,6 +203,10 @@ def _size_band(drive: Drive, grid: CornerGrid, lsb: float, c0: int, full: int) -
         lo = np.maximum(c0 - b // 2, 1)[:, None]
         ss = hysteretic_steady_state(lo * lsb, (lo + b[:, None]) * lsb, lp.v_on, lp.r_on, lp.r_off,
                                      lp.v_off, lp.inductance, drive.hold.sense_delay)
+        if lp.mixed is not None:   # mixed decay: the fast part's time from the slow orbit's at nominal
+            ss = hysteretic_steady_state(lo * lsb, (lo + b[:, None]) * lsb, lp.v_on, lp.r_on, lp.r_off,
+                                         lp.v_off, lp.inductance, drive.hold.sense_delay,
+                                         drive.hold.fast_fraction * ss.t_off[:, :1], lp.mixed)
         return (_pick(drive, ss.frequency, ss.regulated),
                 bool(np.any(_fits(drive, ss.frequency, ss.regulated))), ss)
 
@@ -269,6 +273,23 @@ def _size_off_time(drive: Drive, grid: CornerGrid, peak_a: float) -> float:
     return float(t[_pick(drive, ss.frequency, ss.regulated)])
 
 
+def _fast_one_shot(drive: Drive, grid: CornerGrid, lsb: float, c0: int, band: int) -> tuple:
+    """A full bridge's mixed decay under hysteretic control: each off-time's fast part is a
+    fixed time the firmware's one-shot makes, ``fast_fraction`` x the slow-decay off-time at
+    the nominal point (the coil at the hold's temperature) of the band centred on the hold
+    current (the band's sizing); ``(time s, prescaler, ticks, target s)`` on the board's
+    timer."""
+    lp = _sizing_loops(drive, grid)
+    lo = max(c0 - band // 2, 1)
+    ss = hysteretic_steady_state(lo * lsb, (lo + band) * lsb, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
+                                 lp.inductance, drive.hold.sense_delay)
+    target = drive.hold.fast_fraction * float(np.ravel(ss.t_off)[0])
+    timer = drive.board.timer
+    t = solve_timer(timer.clock, timer.bits, timer.prescaler_max, 1.0 / target,
+                    drive.hold.frequency_tolerance, timer.prescalers)
+    return t.prescaler * t.period_ticks / timer.clock, t.prescaler, t.period_ticks, target
+
+
 def choose_thresholds(drive: Drive, grid: CornerGrid, peak_time: float = 0.0) -> Thresholds:
     """The current-mode setting for ``drive`` (see the module docstring; ``peak_time``: the
     peak an on/off cycle heats the coil with, s)."""
@@ -284,14 +305,16 @@ def choose_thresholds(drive: Drive, grid: CornerGrid, peak_time: float = 0.0) ->
     if h.control == "hysteretic":
         sized = h.band <= 0
         band = _size_band(drive, grid, lsb, c0, full) if sized else max(1, round(h.band / lsb))
+        fast = (0.0, 0, 0, 0.0) if not (full_bridge(drive) and h.fast_fraction > 0) else \
+            _fast_one_shot(drive, grid, lsb, c0, band)
         start = max(1, c0 - band - 2)
         code = None
         while code is None and start + band <= full:
             codes = np.arange(start, min(full - band, start + chunk - 1) + 1)
-            code = _smallest_holding(drive, grid, codes, band, 0.0, delay, lsb, peak_time)
+            code = _smallest_holding(drive, grid, codes, band, fast[0], delay, lsb, peak_time)
             start = int(codes[-1]) + 1
         lower = code if code is not None else min(c0, full - band)
-        return Thresholds("hysteretic", lsb, lower, lower + band, 0.0, 0, 0, 0.0, delay, sized)
+        return Thresholds("hysteretic", lsb, lower, lower + band, *fast, delay, sized)
     sized = h.off_time <= 0
     target = _size_off_time(drive, grid, c0 * lsb) if sized else h.off_time
     t = solve_timer(timer.clock, timer.bits, timer.prescaler_max, 1.0 / target,
@@ -663,7 +686,7 @@ def _mode_result(drive: Drive, th: Thresholds, grid: CornerGrid, cm: CurrentMode
         band_a=th.upper_a - th.lower_a if hyst else None,
         off_time_s=None if hyst else th.off_time_s,
         off_time_target_s=None if hyst else th.off_time_target_s,
-        off_prescaler=None if hyst else th.off_prescaler, off_ticks=None if hyst else th.off_ticks,
+        off_prescaler=None if hyst and fast_ticks(drive, th) is None else th.off_prescaler, off_ticks=None if hyst else th.off_ticks,
         sized_from_frequency=th.sized, sense_delay_s=th.delay_s,
         nominal_frequency_hz=nominal_frequency,
         min_frequency_hz=flo, min_frequency_corner=grid.label(k_lo), min_frequency_coil_temp_c=t_lo,
@@ -671,15 +694,20 @@ def _mode_result(drive: Drive, th: Thresholds, grid: CornerGrid, cm: CurrentMode
         allowed_min_frequency_hz=f_lo, allowed_max_frequency_hz=f_hi, allowed_max_source=f_src,
         min_duty=duties[0], max_duty=duties[1],
         shortest_segment_s=shortest, regulated_corners=int(np.sum(reg)),
-        corners=len(grid), off_fast_ticks=fast_ticks(drive, th))
+        corners=len(grid), off_fast_ticks=fast_ticks(drive, th),
+        fast_time_s=None if fast_ticks(drive, th) is None else (
+            th.off_time_s if hyst else fast_ticks(drive, th) * th.off_time_s / th.off_ticks))
 
 
 def fast_ticks(drive: Drive, th: Thresholds) -> int | None:
-    """A full bridge's mixed decay under the fixed off-time: the off-timer counts of each
-    off-time's fast part, ``round(fast_fraction x off_ticks)`` (the firmware's one-shot
-    times the fast part, then the rest); ``None`` otherwise."""
-    if th.control == "hysteretic" or not (full_bridge(drive) and drive.hold.fast_fraction > 0):
+    """A full bridge's mixed decay: the off-timer counts of each off-time's fast part --
+    under the fixed off-time ``round(fast_fraction x off_ticks)`` (the firmware's one-shot
+    times the fast part, then the rest), under hysteretic control the one-shot's own
+    (:func:`_fast_one_shot`); ``None`` otherwise."""
+    if not (full_bridge(drive) and drive.hold.fast_fraction > 0):
         return None
+    if th.control == "hysteretic":   # the one-shot times the fast part alone
+        return th.off_ticks
     return int(round(drive.hold.fast_fraction * th.off_ticks))
 
 
@@ -764,6 +792,16 @@ def _fast_timer_check(drive: Drive, th: Thresholds, fast: int) -> Check:
     counts), then the slow rest; each at least two counts (as the off-time), or the slow
     rest none (a fraction of 1). The model takes ``fast_fraction x t_off``: the rounding
     to whole counts is reported, and fails where it is beyond the frequency tolerance."""
+    if th.control == "hysteretic":
+        err = (th.off_time_s - th.off_time_target_s) / th.off_time_target_s
+        ok = fast >= 2 and abs(err) <= drive.hold.frequency_tolerance
+        return Check("current_mode_fast_timer", bool(ok),
+                     f"mixed decay: each off-time fast for {th.off_time_s * 1e6:.5g} us = {fast} counts at "
+                     f"prescaler {th.off_prescaler} (or to the lower threshold, if sooner), for "
+                     f"{th.off_time_target_s * 1e6:.5g} us = fast_fraction {drive.hold.fast_fraction:g} x the "
+                     f"slow-decay off-time at the nominal point (error {err:+.3%}, allowed "
+                     f"{drive.hold.frequency_tolerance:.2%})" + ("" if ok else " -- the timer cannot make it: "
+                                                                  "change fast_fraction or the band"))
     slow = th.off_ticks - fast
     err = (fast / th.off_ticks - drive.hold.fast_fraction) if th.off_ticks else 0.0
     ok = fast >= 2 and (slow >= 2 or slow == 0) and abs(err) <= drive.hold.frequency_tolerance
@@ -828,9 +866,10 @@ def threshold_hold(th: Thresholds, t: float, i: float, end: float, v: float, r_o
     [start s, current A] of the last on-time or [])``. Where the threshold is out of reach
     (``V / R_on`` at or below it) the switch stays on to ``end``.
 
-    ``mixed`` (a full bridge's :class:`~coildrive.model.pwm.MixedDecay` at this point, the
-    fixed off-time, a linear coil): each off-time's first ``mixed.fraction`` decays fast
-    (all four open; a sample where the current dies), the rest slowly; ``marks`` then gets,
+    ``mixed`` (a full bridge's :class:`~coildrive.model.pwm.MixedDecay` at this point, a
+    linear coil): each off-time's first ``mixed.fraction`` (hysteretic: the one-shot's
+    ``th.off_time_s``, or to the lower threshold if sooner) decays fast (all four open; a
+    sample where the current dies), the rest slowly; ``marks`` then gets,
     per segment appended, a 2-row array: the current flowing in the fast path, all four open."""
     a = v / r_on   # the current the on-time rises toward, A
     hyst = th.control == "hysteretic"
@@ -882,9 +921,13 @@ def threshold_hold(th: Thresholds, t: float, i: float, end: float, v: float, r_o
         # down from the peak, gets as many samples as the peak
         n = big if first else points
         if seg is not None:   # mixed decay: the fast part, then the slow one
-            t_fast = mixed.fraction * th.off_time_s
-            t, i = fast_seg(t, i, t_fast, n)
-            t, i = off_seg(t, i, th.off_time_s - t_fast, n)
+            t_fast = th.off_time_s if hyst else mixed.fraction * th.off_time_s
+            dur = th.off_time_s
+            if hyst:   # to the lower threshold (+ delay), in the fast part or the slow one
+                dur = float(MixedPath(i, t_fast, seg.r_f, seg.v_f, r_off, float(ind)).time_to(lower)) + d
+            t, i = fast_seg(t, i, min(t_fast, dur), n)
+            if dur > t_fast:
+                t, i = off_seg(t, i, dur - t_fast, n)
         else:
             dur = float(decay_time(lower, i, r_off, v_off, ind)) + d if hyst else th.off_time_s
             t, i = off_seg(t, i, dur, n)

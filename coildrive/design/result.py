@@ -122,7 +122,9 @@ class CurrentModeResult:
     extreme names its corner (``*_corner``, the corner grid's label) and the coil's
     temperature there (``*_coil_temp_c``). A full bridge's mixed decay (the fixed off-time):
     ``off_fast_ticks``, the off-timer counts of each off-time's fast part
-    (``round(fast_fraction x off_ticks)``; the key only then)."""
+    (``round(fast_fraction x off_ticks)``), ``fast_time_s`` its time; under hysteretic control
+    the one-shot's counts at ``off_prescaler`` and time (the fast part ends there or at the
+    lower threshold). The keys only then."""
 
     control: str
     sense_position: str
@@ -155,6 +157,7 @@ class CurrentModeResult:
     regulated_corners: int
     corners: int
     off_fast_ticks: int | None = None
+    fast_time_s: float | None = None
 
 
 @dataclass(frozen=True)
@@ -823,8 +826,9 @@ class Design(Verdict):
         if self.peak_table is not None:
             out["peak_table"] = asdict(self.peak_table)
         if current_mode is not None:
-            if current_mode["off_fast_ticks"] is None:   # mixed decay's only (older outputs keep their bytes)
-                del current_mode["off_fast_ticks"]
+            for key in ("off_fast_ticks", "fast_time_s"):   # mixed decay's only (older outputs keep their bytes)
+                if current_mode[key] is None:
+                    del current_mode[key]
             out["current_mode"] = current_mode
         if closed_loop is not None:
             out["closed_loop"] = closed_loop

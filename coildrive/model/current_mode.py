@@ -33,7 +33,10 @@ form with no fixed point::
     bottom = i_f e^(-t_s R_off / L)
 
 and ``t_on`` as above; ``charge_fast``/``square_fast`` are the fast segment's integrals
-(the bus takes ``V_bus x charge_fast`` back every period).
+(the bus takes ``V_bus x charge_fast`` back every period). The hysteretic control's fast
+part is a fixed time ``t_f`` (a one-shot from the turn-off, ``fast_time``): the off-time
+runs on that path -- fast until ``t_f``, slow after -- down to the lower threshold, which
+may come in the fast part (the switch then turns on with the fast part cut short).
 
 ``delay`` is the time from a threshold crossing to the switch edge (comparator, ADC
 conversion, interrupt latency): the current runs on for that long past each threshold,
@@ -202,12 +205,16 @@ def _broadcast(values, inductance):
 
 
 def hysteretic_steady_state(i_lo, i_hi, v_on, r_on, r_off, v_off, inductance,
-                            delay=0.0) -> CurrentModeSteadyState:
+                            delay=0.0, fast_time=0.0, mixed: MixedDecay | None = None) -> CurrentModeSteadyState:
     """Hysteretic band ``i_lo``..``i_hi`` A (``0 <= i_lo < i_hi``), ``delay`` s per edge.
 
     Loop arguments as :func:`coildrive.model.pwm.pwm_steady_state` (V, ohm, H; ``v_off``
-    > 0 opposes the freewheeling current).
+    > 0 opposes the freewheeling current). ``mixed``: a full bridge's mixed decay, each
+    off-time fast for the fixed ``fast_time`` s (or until the lower threshold, if sooner),
+    then slow (a linear coil; module docstring).
     """
+    if mixed is not None and mixed.fraction > 0:
+        return _mixed_orbit("hysteretic", i_lo, i_hi, fast_time, v_on, r_on, r_off, inductance, delay, mixed)
     i_lo, i_hi, v_on, r_on, r_off, v_off, delay, inductance = _broadcast(
         (i_lo, i_hi, v_on, r_on, r_off, v_off, delay), inductance)
     if isinstance(inductance, EddyCoil):
@@ -233,7 +240,7 @@ def off_time_steady_state(i_peak, t_off, v_on, r_on, r_off, v_off, inductance,
     """Peak threshold ``i_peak`` A, fixed off time ``t_off`` s, ``delay`` s to turn off;
     ``mixed``: a full bridge's mixed decay (a linear coil; module docstring)."""
     if mixed is not None and mixed.fraction > 0:
-        return _mixed_off_time(i_peak, t_off, v_on, r_on, r_off, inductance, delay, mixed)
+        return _mixed_orbit("off_time", 0.0, i_peak, t_off, v_on, r_on, r_off, inductance, delay, mixed)
     i_peak, t_off, v_on, r_on, r_off, v_off, delay, inductance = _broadcast(
         (i_peak, t_off, v_on, r_on, r_off, v_off, delay), inductance)
     if isinstance(inductance, EddyCoil):
@@ -251,32 +258,69 @@ def off_time_steady_state(i_peak, t_off, v_on, r_on, r_off, v_off, inductance,
                    regulated)
 
 
-def _mixed_off_time(i_peak, t_off, v_on, r_on, r_off, inductance, delay,
-                    mixed: MixedDecay) -> CurrentModeSteadyState:
-    """:func:`off_time_steady_state` with a full bridge's mixed decay: the fast part, then
-    the slow one (no opposing voltage), each the closed-form RL segment."""
+class MixedPath:
+    """An off-time of a full bridge's mixed decay from ``top`` A: fast for ``t_fast`` s
+    (``L di/dt = -(r_f i + v_f)``, blocking at zero), then slow (``L di/dt = -r_s i``);
+    linear coil ``ind`` H, arrays broadcast together."""
+
+    def __init__(self, top, t_fast, r_f, v_f, r_s, ind):
+        self.top, self.t_fast, self.r_f, self.v_f, self.r_s, self.ind = top, t_fast, r_f, v_f, r_s, ind
+        self.to_zero = decay_time(0.0, top, r_f, v_f, ind)
+        self.dies = self.to_zero <= t_fast                                 # the body diodes block
+        self.i_fast = np.where(self.dies, 0.0, np.maximum(decay_current(t_fast, top, r_f, v_f, ind), 0.0))
+
+    def current(self, t):
+        """The current ``t`` s into the off-time (A)."""
+        fast = decay_current(np.minimum(t, self.t_fast), self.top, self.r_f, self.v_f, self.ind)
+        slow = decay_current(np.maximum(t - self.t_fast, 0.0), self.i_fast, self.r_s, 0.0, self.ind)
+        return np.where(t <= self.t_fast, fast, np.where(self.dies, 0.0, slow))
+
+    def time_to(self, level):
+        """The time to ``level`` A (``0 < level <= top``), in the fast part or the slow one (s)."""
+        in_fast = level >= self.i_fast
+        t1 = decay_time(np.minimum(level, self.top), self.top, self.r_f, self.v_f, self.ind)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            t2 = self.t_fast + decay_time(np.minimum(level, self.i_fast), self.i_fast, self.r_s, 0.0, self.ind)
+        return np.where(in_fast, t1, t2)
+
+    def integrals(self, t):
+        """``(q_fast, s_fast, q_slow, s_slow)`` over the first ``t`` s (A*s, A^2*s) and the
+        time the current flows in them (s)."""
+        q_f, s_f = decay_integrals(np.minimum(np.minimum(t, self.t_fast), self.to_zero), self.top,
+                                   self.r_f, self.v_f, self.ind)
+        slow = np.where(self.dies, 0.0, np.maximum(t - self.t_fast, 0.0))
+        q_s, s_s = decay_integrals(slow, self.i_fast, self.r_s, 0.0, self.ind)
+        return q_f, s_f, q_s, s_s, np.where(self.dies, np.minimum(t, self.to_zero), t)
+
+
+def _mixed_orbit(control, i_lo, level, t_off, v_on, r_on, r_off, inductance, delay,
+                 mixed: MixedDecay) -> CurrentModeSteadyState:
+    """The current-mode orbit with a full bridge's mixed decay (a linear coil): off at the
+    upper/peak threshold ``level`` A (+ the delay's run-on), then fast for ``t_off`` s of a
+    fixed off-time's ``mixed.fraction`` (``control`` ``"off_time"``) or, hysteretic, for the
+    fixed one-shot time ``t_off`` s, the rest slow; the off-time ends after ``t_off`` s or at
+    the lower threshold ``i_lo`` A (+ the delay)."""
     if isinstance(inductance, (FluxCoil, EddyCoil)):
         raise ValueError("a current-mode mixed-decay hold is modelled for a linear coil")
-    i_peak, t_off, v_on, r_on, r_off, delay, ind, r_f, v_f = np.broadcast_arrays(
-        *(np.asarray(x, float) for x in (i_peak, t_off, v_on, r_on, r_off, delay, inductance,
+    i_lo, level, t_off, v_on, r_on, r_off, delay, ind, r_f, v_f = np.broadcast_arrays(
+        *(np.asarray(x, float) for x in (i_lo, level, t_off, v_on, r_on, r_off, delay, inductance,
                                          mixed.r_fast, mixed.v_fast)))
     a = v_on / r_on
-    regulated = i_peak < a
-    pk = np.where(regulated, i_peak, 0.5 * a)
-    top = rise_current(delay, pk, v_on, r_on, ind)                     # run-on past I_pk
-    t_fast = mixed.fraction * t_off
-    t_slow = t_off - t_fast
-    to_zero = decay_time(0.0, top, r_f, v_f, ind)
-    dies = to_zero <= t_fast                                           # the body diodes block
-    i_fast = np.where(dies, 0.0, np.maximum(decay_current(t_fast, top, r_f, v_f, ind), 0.0))
-    bottom = np.where(dies, 0.0, decay_current(t_slow, i_fast, r_off, 0.0, ind))
-    conduction = np.where(dies, to_zero, t_off)
+    regulated = level < a
+    pk = np.where(regulated, level, 0.5 * a)
+    top = rise_current(delay, pk, v_on, r_on, ind)                     # run-on past the threshold
+    hyst = control == "hysteretic"
+    path = MixedPath(top, t_off if hyst else mixed.fraction * t_off, r_f, v_f, r_off, ind)
+    if hyst:
+        lo = np.clip(i_lo, 1e-300, pk)
+        t_off = path.time_to(lo) + delay
+    bottom = path.current(t_off)
     t_on = rise_time(pk, np.minimum(bottom, pk), v_on, r_on, ind) + delay
+    q_f, s_f, q_s, s_s, conduction = path.integrals(t_off)
     bottom, top, t_on, t_off, conduction = _unregulated(bottom, top, t_on, t_off, conduction, a,
                                                         regulated)
     q_on, s_on = rise_integrals(t_on, bottom, v_on, r_on, ind)
-    q_f, s_f = decay_integrals(np.where(regulated, np.minimum(t_fast, to_zero), 0.0), top, r_f, v_f, ind)
-    q_s, s_s = decay_integrals(np.where(regulated & ~dies, t_slow, 0.0), i_fast, r_off, 0.0, ind)
+    q_f, s_f, q_s, s_s = (np.where(regulated, x, 0.0) for x in (q_f, s_f, q_s, s_s))
     return _state(bottom, top, t_on, t_off, conduction, q_on, s_on, q_f + q_s, s_f + s_s, regulated,
                   charge_fast=q_f, square_fast=s_f)
 
