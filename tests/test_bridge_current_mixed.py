@@ -178,6 +178,61 @@ def test_hysteretic_mixed_orbit_against_solve_ivp(tmp_path, edit):
     assert b["returned_per_hold_period_j"] == pytest.approx(c["supply_v"] * orbit(c)[2], rel=1e-6)
 
 
+def reference_delayed(control, v, r_on, r_fast, v_fast, r_slow, ell, lo, hi, t_fast, t_off, delay):
+    """``(frequency Hz, mean A, fast charge C)`` of either control's orbit with a sense delay
+    (the switch follows each threshold ``delay`` s late), by ``solve_ivp`` period after
+    period: on to ``hi`` (an event) and ``delay`` more; off along the path -- fast for
+    ``t_fast`` s (stopping at zero), then slow -- for ``t_off`` s, or hysteretic to ``lo``
+    (an event on the path) and ``delay`` more."""
+    from scipy.integrate import solve_ivp
+
+    on, fast, slow, crossing = segments(v, r_on, r_fast, v_fast, r_slow, ell)
+
+    def path(i0, t_end, level=None):
+        """Along the off path from ``i0`` for ``t_end`` s or to ``level``: ``(t, i, q, q_fast)``."""
+        events = [crossing(0.0, -1)] + ([crossing(level, -1)] if level is not None else [])
+        b = solve_ivp(fast, (0.0, min(t_end, t_fast)), [i0, 0.0], events=events, **OPTS)
+        if level is not None and b.t_events[1].size:
+            return b.t[-1], b.y[0, -1], b.y[1, -1], b.y[1, -1]
+        i_f = 0.0 if b.t_events[0].size else b.y[0, -1]
+        if t_end <= t_fast or i_f == 0.0:
+            return (t_end if level is None else math.inf), i_f, b.y[1, -1], b.y[1, -1]
+        c = solve_ivp(slow, (0.0, t_end - t_fast), [i_f, 0.0], events=events[1:], **OPTS)
+        return t_fast + c.t[-1], c.y[0, -1], b.y[1, -1] + c.y[1, -1], b.y[1, -1]
+
+    i, periods = lo, []
+    for _ in range(40):
+        a = solve_ivp(on, (0.0, 1.0), [i, 0.0], events=crossing(hi, 1), **OPTS)
+        d = solve_ivp(on, (0.0, delay), [hi, 0.0], **OPTS)
+        top, t_on, q_on = d.y[0, -1], a.t[-1] + delay, a.y[1, -1] + d.y[1, -1]
+        off = t_off if control == "off_time" else path(top, 1.0, lo)[0] + delay
+        _, i, q, q_f = path(top, off)
+        periods.append((t_on + off, (q_on + q) / (t_on + off), q_f))
+    assert abs(periods[-2][0] / periods[-1][0] - 1) < 1e-9, "the orbit repeats"
+    return 1.0 / periods[-1][0], periods[-1][1], periods[-1][2]
+
+
+@pytest.mark.parametrize("control, t_fast", [("off_time", 0.3), ("hysteretic", 3e-6), ("hysteretic", 30e-6)],
+                         ids=["off-time", "hysteretic-fast-then-slow", "hysteretic-all-fast"])
+def test_a_sense_delay_runs_on_along_the_path_as_solve_ivp_says(control, t_fast):
+    """A 2 us sense delay: the switch opens that long after the upper (peak) threshold and,
+    hysteretic, turns on that long after the lower one, the current running on along the
+    path it is on (solve_ivp, :func:`reference_delayed`); frequency, mean and fast charge
+    within 1e-6. Element values invented (a 24 V, 69 mH coil on the bridge)."""
+    v, r_on, r_f, r_s, ell, vf, delay = 24.0, 26.17, 26.1, 26.17, 0.069, 25.6, 2e-6
+    lo, hi, t_off = 0.39, 0.4, 40e-6
+    mixed = MixedDecay(0.3 if control == "off_time" else 0.5, r_f, vf)
+    if control == "off_time":
+        ss = off_time_steady_state(hi, t_off, v, r_on, r_s, 0.0, ell, delay, mixed)
+        ref = reference_delayed(control, v, r_on, r_f, vf, r_s, ell, lo, hi, t_fast * t_off, t_off, delay)
+    else:
+        ss = hysteretic_steady_state(lo, hi, v, r_on, r_s, 0.0, ell, delay, t_fast, mixed)
+        ref = reference_delayed(control, v, r_on, r_f, vf, r_s, ell, lo, hi, t_fast, 0.0, delay)
+    assert float(ss.frequency) == pytest.approx(ref[0], rel=1e-6)
+    assert float(ss.mean) == pytest.approx(ref[1], rel=1e-6)
+    assert float(ss.charge_fast) == pytest.approx(ref[2], rel=1e-6)
+
+
 def test_the_current_dies_in_the_fast_part_as_solve_ivp_says():
     """A long off-time, all of it fast: the body diodes block at zero and every on-time
     starts from zero (solve_ivp, module docstring); the mean and frequency within 1e-6."""
@@ -242,15 +297,25 @@ def test_virtual_device_runs_it_and_check_passes(mixed, tmp_path):
     device_checks(design(mixed[0]), tmp_path)
 
 
-def test_a_curve_with_current_mode_mixed_decay_is_refused_in_one_line(tmp_path):
+@pytest.mark.parametrize("what", ["curve", "eddy", "droop", "armature"])
+def test_what_current_mode_mixed_decay_refuses_is_one_line(tmp_path, what):
+    """A curve, an eddy term, the drooping bus, an [armature]: one line naming the key."""
+    from test_bridge_armature import ARMATURE
     from test_flux_bridge import CURVE
-    path = _variant(tmp_path, (HOLD, HOLD + "fast_fraction = 0.3\n"), ('inductance = "70 mH"\n', "flux_current" + CURVE))
+
+    edit, fragment = {
+        "curve": (('inductance = "70 mH"\n', "flux_current" + CURVE), "flux-linkage curve"),
+        "eddy": (('inductance = "70 mH"\n', 'inductance = "70 mH"\neddy_resistance = "300 ohm"\n'), "eddy term"),
+        "droop": (("[supply]\n", '[supply]\nsource_resistance = "0.5 ohm"\n'), "drooping bus"),
+        "armature": (("[ambient]\n", ARMATURE + "\n[ambient]\n"), "[armature]")}[what]
+    path = _variant(tmp_path, (HOLD, HOLD + "fast_fraction = 0.3\n"), edit)
     with pytest.raises(InputError) as err:
         load_drive(path)
     line = str(err.value)
-    assert "\n" not in line and "hold.fast_fraction" in line and "flux-linkage curve" in line
-    r = run_cli("design", str(path))
-    assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1
+    assert "\n" not in line and "hold.fast_fraction" in line and fragment in line and str(path) in line
+    if what == "curve":
+        r = run_cli("design", str(path))
+        assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1
 
 
 @pytest.mark.compiler
