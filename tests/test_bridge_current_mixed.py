@@ -26,6 +26,7 @@ The virtual device and the driver in the loop share the design's physics: plumbi
 
 from __future__ import annotations
 
+import json
 import math
 
 import numpy as np
@@ -516,3 +517,15 @@ def test_hysteretic_mixed_orbit_drives_the_ngspice_bridge_between_its_thresholds
     assert abs(res["imax"] - hi) <= 0.01 * (hi - lo) and abs(res["imin"] - lo) <= 0.01 * (hi - lo)
     assert res["iavg"] == pytest.approx(float(ss.mean), rel=0.01)
     assert res["eback"] == pytest.approx(V_SUP * float(ss.charge_fast), rel=0.01)
+
+
+def test_an_unreachable_band_fails_its_checks_not_the_run(tmp_path):
+    """Hysteretic mixed decay where the upper threshold is out of reach at the nominal
+    point (no slow-decay off-time to take the fraction of): the design fails its checks,
+    `current_mode_fast_timer` among them, in one JSON document."""
+    path = _variant(tmp_path, (HOLD, HOLD + "fast_fraction = 0.3\n"), ('current = "0.2 A"', 'current = "0.85 A"'),
+                    ('current = "0.5 A"', 'current = "0.95 A"'))
+    r = run_cli("design", str(path), "--json")
+    assert r.returncode == 1, r.stderr
+    checks = {c["name"]: c["ok"] for c in json.loads(r.stdout)["checks"]}
+    assert checks["current_mode_fast_timer"] is False and checks["current_mode_regulated"] is False

@@ -284,6 +284,8 @@ def _fast_one_shot(drive: Drive, grid: CornerGrid, lsb: float, c0: int, band: in
     ss = hysteretic_steady_state(lo * lsb, (lo + band) * lsb, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
                                  lp.inductance, drive.hold.sense_delay)
     target = drive.hold.fast_fraction * float(np.ravel(ss.t_off)[0])
+    if not (bool(np.ravel(ss.regulated)[0]) and target > 0):
+        return 0.0, 1, 0, 0.0   # the threshold out of reach at the nominal point: no fast part (checked)
     timer = drive.board.timer
     t = solve_timer(timer.clock, timer.bits, timer.prescaler_max, 1.0 / target,
                     drive.hold.frequency_tolerance, timer.prescalers)
@@ -792,6 +794,10 @@ def _fast_timer_check(drive: Drive, th: Thresholds, fast: int) -> Check:
     counts), then the slow rest; each at least two counts (as the off-time), or the slow
     rest none (a fraction of 1). The model takes ``fast_fraction x t_off``: the rounding
     to whole counts is reported, and fails where it is beyond the frequency tolerance."""
+    if th.control == "hysteretic" and not th.off_time_target_s > 0:
+        return Check("current_mode_fast_timer", False,
+                     "mixed decay: no slow-decay off-time at the nominal point to take fast_fraction of (the "
+                     "upper threshold out of reach there: see current_mode_regulated)")
     if th.control == "hysteretic":
         err = (th.off_time_s - th.off_time_target_s) / th.off_time_target_s
         ok = fast >= 2 and abs(err) <= drive.hold.frequency_tolerance
