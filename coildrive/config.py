@@ -1570,11 +1570,15 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,
-                  supply: Supply, hold: Hold, coil: Coil) -> None:
+                  supply: Supply, hold: Hold, coil: Coil, armature=None) -> None:
     """What a full bridge needs: its freewheel path is its switches' body diodes (type
-    "diode", no split decay: the bridge decays slowly and fast by itself), mixed decay only
-    under a fixed, supply-table or closed-loop hold (a current-mode hold decays slowly: a
-    fast part in its off-times, off-time or hysteretic, is not modelled),
+    "diode", no split decay: the bridge decays slowly and fast by itself), mixed decay under
+    a fixed, supply-table or closed-loop hold, or a current-mode hold (the fixed off-time:
+    each off-time's first ``fast_fraction`` fast, the rest slow; hysteretic: each off-time
+    fast for a fixed one-shot time, ``fast_fraction`` x the slow-decay off-time at the
+    nominal point; a linear coil on a stiff main supply, no boost, no ``[armature]`` -- a
+    curve, an eddy term, the drooping bus, a boosted peak and a moving armature are not
+    modelled with it),
     and with a supply that cannot sink the returned
     energy, the bulk capacitance. (The supply's ``sink`` and
     ``capacitance`` keys mean nothing to the other topologies, which return no energy.)"""
@@ -1594,11 +1598,17 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
                          "a full bridge decays slowly in the hold and fast at the release by itself: "
                          "expected split_decay left out")
     if hold.regulation == "current" and hold.fast_fraction > 0:
-        raise InputError(source, "hold.fast_fraction", f"{hold.fast_fraction:g} with hold.mode = "
-                         "\"current\": a full bridge's current-mode hold decays slowly (the two "
-                         "low-side switches; a fast part in its off-times is not modelled), expected "
-                         "0 or the key left out (mixed decay: a fixed, supply-table or closed-loop "
-                         "hold)")
+        why = ("a flux-linkage curve" if coil.flux_current else
+               "an eddy term (coil.eddy_resistance)" if coil.eddy_resistance else
+               "the drooping bus (supply.source_resistance)" if supply.droops else
+               "a boosted peak (supply.boost)" if supply.boosted else
+               "an [armature]" if armature is not None else "")
+        if why:
+            raise InputError(source, "hold.fast_fraction", f"{hold.fast_fraction:g} with hold.mode = "
+                             f"\"current\" and {why}: a full bridge's current-mode mixed decay is "
+                             "modelled on a linear coil (no [armature]) from a stiff main supply, "
+                             "expected 0 or the key left out (or a fixed, supply-table "
+                             "or closed-loop hold)")
     if not supply.sink and not supply.capacitance > 0:
         raise InputError(source, "supply.capacitance", "missing: with sink = false the returned "
                          "energy lands on the bulk capacitance, expected its value (e.g. \"470 uF\")")
@@ -1865,7 +1875,7 @@ def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_
         fw_board = {k: v for k, v in fw_board.items() if k == "type" or v}
     merged, origins = _merged(brd.source, fw_board, source, fw_drive)
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
-    _check_bridge(source, origins, switch, freewheel, supply, hold, coil)
+    _check_bridge(source, origins, switch, freewheel, supply, hold, coil, armature)
     _check_boost(source, origins, coil, switch, freewheel, supply, hold, pull_in, armature, duty, latch)
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:
         raise InputError(origins.get("clamp_voltage", source), "freewheel.clamp_voltage",

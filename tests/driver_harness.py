@@ -199,6 +199,11 @@ def budget_shapes() -> list[tuple[str, object]]:
         # a bridge's current-mode hold: the threshold handlers switch the masks
         shapes.append((f"dosing-valve-bridge-24v {control}", example_design(
             "dosing-valve-bridge-24v", ("[hold]\n", f'[hold]\nmode = "current"\ncontrol = "{control}"\n'))))
+    # a bridge's current-mode mixed decay: the one-shot times the fast part (then the slow rest)
+    for control, more in (("off_time", "fast_fraction = 0.3\n"),
+                          ("hysteretic", 'fast_fraction = 0.1\nband = "6 mA"\nmin_frequency = "5 kHz"\n')):
+        shapes.append((f"dosing-valve-bridge-24v {control} mixed", example_design(
+            "dosing-valve-bridge-24v", ("[hold]\n", f'[hold]\nmode = "current"\ncontrol = "{control}"\n{more}'))))
     shapes.append(("dosing-valve-bridge-24v closed-loop", example_design(
         "dosing-valve-bridge-24v", ("[hold]\n", '[hold]\nregulation = "closed_loop"\n'))))
     # the regulated holds after a boosted peak: the threshold's conversion arms the

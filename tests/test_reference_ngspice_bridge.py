@@ -322,6 +322,23 @@ def _mixed_gates(t_on, t_fast, period):
             4: f"PULSE(1 0 {t_on + STAGGER!r} {EDGE} {EDGE} {q4_open!r} {period!r})"}
 
 
+def mixed_orbit_netlist(title, t_on, t_fast, period, i_min, inline) -> str:
+    """The bridge driven with a mixed-decay orbit's gates (:func:`_mixed_gates`) for four
+    periods from ``i_min`` A, measuring the last one: ``imax``, ``imin``, ``iavg`` (A) and
+    ``eback``, the energy the supply takes back in its fast part (J)."""
+    n = 4
+    step = period / 4000
+    t0 = (n - 1) * period
+    a, b = f"from={t0!r} to={n * period!r}", f"from={t0!r} to={n * period - step!r}"
+    # the supply takes current back only in the fast part (Q1 open .. Q4 closed again)
+    fast = f"from={t0 + t_on + EDGE!r} to={t0 + t_on + t_fast + 2 * STAGGER!r}"
+    measures = ["let back = -v(bus) * i(VFEED)",
+                f"meas tran imax MAX i(VM) {a}", f"meas tran imin MIN i(VM) {b}",
+                f"meas tran iavg AVG i(VM) {a}", f"meas tran eback INTEG back {fast}"]
+    text = _netlist(title, _mixed_gates(t_on, t_fast, period), n * period, step, measures, inline=inline)
+    return text.replace("IC=0\n", f"IC={i_min!r}\n")
+
+
 @pytest.mark.parametrize("duty,fraction,inline,kind", [
     (0.3, 0.2, False, "linear"), (0.3, 0.2, True, "linear"), (0.05, 1.0, True, "linear"),
     (0.45, 0.3, False, "curve"), (0.05, 0.5, False, "curve")],
@@ -345,18 +362,7 @@ def test_mixed_decay_orbit_matches_ngspice(tmp_path, duty, fraction, inline, kin
     ss = pwm_steady_state(duty, freq, V_SUP, r_on, r_slow, 0.0, coil, mixed=mixed)
     t_on = duty * period
     t_fast = fraction * (period - t_on)
-    n = 4
-    step = period / 4000
-    t0 = (n - 1) * period
-    a, b = f"from={t0!r} to={n * period!r}", f"from={t0!r} to={n * period - step!r}"
-    # the supply takes current back only in the fast part (Q1 open .. Q4 closed again)
-    fast = f"from={t0 + t_on + EDGE!r} to={t0 + t_on + t_fast + 2 * STAGGER!r}"
-    measures = ["let back = -v(bus) * i(VFEED)",
-                f"meas tran imax MAX i(VM) {a}", f"meas tran imin MIN i(VM) {b}",
-                f"meas tran iavg AVG i(VM) {a}", f"meas tran eback INTEG back {fast}"]
-    text = _netlist("bridge-mixed", _mixed_gates(t_on, t_fast, period), n * period, step, measures,
-                    inline=inline)
-    text = text.replace("IC=0\n", f"IC={float(ss.i_min)!r}\n")
+    text = mixed_orbit_netlist("bridge-mixed", t_on, t_fast, period, float(ss.i_min), inline)
     if kind == "curve":
         psi0 = float(np.ravel(flux.linkage(coil, float(ss.i_min)))[0])
         text = _coil_netlist(text, coil).replace("CPHI phi 0 1 IC=0", f"CPHI phi 0 1 IC={psi0!r}")

@@ -68,6 +68,8 @@ magnetising current (the segments of :mod:`coildrive.model.eddy`) and the compar
 sees the terminal current, which steps at each edge by ``(V + V_off) / (R + R_e)``. On a
 full bridge the handlers switch the masks, not the enable: Q1 + Q4 on, Q2 + Q4 off (the
 slow decay); the release (all four open) decays fast from the moment the outputs go off.
+With mixed decay (the fixed off-time) each off-time's fast part has all four open with the
+outputs enabled (the fast path), until the one-shot's first expiry closes Q2 + Q4.
 With an ``[armature]`` the peak is the armature model's pull-in as above and the hold's
 segments are those of the seated coil.
 """
@@ -944,7 +946,8 @@ class FirmwareDevice(LineOutput):
         loop's path)``. One switch: on while enabled; off through the hold's path (the
         bypass closed, or no split decay), else the release's. A full bridge: enabled with
         the drive mask on (Q1 + Q4), off with the slow-decay mask (the threshold handlers
-        switch the masks, not the enable), and the fast path once all four are open."""
+        switch the masks, not the enable), and the fast path once all four are open (with
+        mixed decay also while enabled: each off-time's fast part)."""
         out = int(self.lib.fil_outputs())
         enable = out >> 24 & 1
         if self._bridge is None:
@@ -952,10 +955,13 @@ class FirmwareDevice(LineOutput):
         if not enable:
             return False, "release"
         on_mask = int(self.lib.fil_bridge()) & 0x0F
-        drive, slow, _ = self._bridge
+        drive, slow, fast = self._bridge
+        if self._mixed and on_mask == fast:   # a mixed-decay off-time's fast part: all four open
+            return False, "release"
         if on_mask not in (drive, slow):
             raise RuntimeError(f"the driver switches the bridge's current-mode hold as {on_mask:#x}; the "
-                               f"coil model has paths for on {drive:#x} and off {slow:#x} (slow decay)")
+                               f"coil model has paths for on {drive:#x} and off {slow:#x} (slow decay)"
+                               + (f" or {fast:#x} (fast decay)" if self._mixed else ""))
         return on_mask == drive, "hold"
 
     def _bridge_slow(self, enable: int) -> bool:

@@ -133,7 +133,17 @@ class DriverView:
             self.threshold_low, self.threshold_high = "0U", f"{m}_HOLD_PEAK_CODE"
         else:
             self.threshold_low, self.threshold_high = f"{m}_HOLD_LOWER_CODE", f"{m}_HOLD_UPPER_CODE"
-        self.off_type = c_uint_type(max(cm.off_ticks, 0x100)) if self.off_time else "uint16_t"
+        fast_cm = cm is not None and cm.off_fast_ticks is not None
+        self.off_type = c_uint_type(max(cm.off_ticks or cm.off_fast_ticks, 0x100)) if (
+            self.off_time or fast_cm) else "uint16_t"
+        #: mixed decay in a PWM hold (the fast part's end with each compare: port_fast_end),
+        #: or under the current mode's fixed off-time (the one-shot times the fast part with
+        #: all four open, then the slow rest: the threshold and off-timer handlers)
+        self.mixed_pwm = self.mixed and cm is None
+        self.mixed_off = self.mixed and self.off_time
+        #: hysteretic with mixed decay: the one-shot (port_off_timer) times each fast part
+        self.mixed_hyst = self.mixed and cm is not None and not self.off_time
+        self.one_shot = self.off_time or self.mixed_hyst
         self.split = d.split_decay is not None
         self.armature = d.armature is not None and all(
             math.isfinite(x) for x in (d.armature.seat_time_min_s, d.armature.seat_time_s))
@@ -243,7 +253,7 @@ def render_driver(design: Design, prefix: str = "coil") -> dict[str, str]:
 #: ``adc_isr_closed_loop_mixed`` a closed loop with a bridge's mixed decay (the PI step, then
 #: the fast part's end of its new compare), over the bridge example with a closed loop and
 #: ``fast_fraction = 0.3``.
-HANDLER_CYCLES = {"adc_isr": 340, "pwm_isr": 11, "tick": 692, "threshold_isr": 142,
+HANDLER_CYCLES = {"adc_isr": 340, "pwm_isr": 11, "tick": 692, "threshold_isr": 145,
                   "adc_isr_closed_loop": 602, "adc_isr_bridge": 371, "adc_isr_boost": 404, "adc_isr_mixed": 452,
                   "adc_isr_boost_closed_loop": 649, "adc_isr_closed_loop_mixed": 710}
 #: Worst-case cycle bounds of each handler on Cortex-M cores, over the same drive shapes
@@ -256,24 +266,24 @@ HANDLER_CYCLES = {"adc_isr": 340, "pwm_isr": 11, "tick": 692, "threshold_isr": 1
 #: instructions executed on those worst paths. The test measures again and fails if a
 #: figure exceeds its bound or all fall 10 % below it.
 CORTEX_CYCLES = {
-    "cortex-m0plus": {"adc_isr": 324, "pwm_isr": 13, "tick": 525, "threshold_isr": 121,
+    "cortex-m0plus": {"adc_isr": 324, "pwm_isr": 13, "tick": 525, "threshold_isr": 124,
                       "adc_isr_closed_loop": 312, "adc_isr_bridge": 349, "adc_isr_boost": 362,
                       "adc_isr_mixed": 368, "adc_isr_boost_closed_loop": 356, "adc_isr_closed_loop_mixed": 362},
-    "cortex-m3": {"adc_isr": 305, "pwm_isr": 8, "tick": 509, "threshold_isr": 102,
+    "cortex-m3": {"adc_isr": 305, "pwm_isr": 8, "tick": 509, "threshold_isr": 103,
                   "adc_isr_closed_loop": 309, "adc_isr_bridge": 328, "adc_isr_boost": 327,
                   "adc_isr_mixed": 346, "adc_isr_boost_closed_loop": 333, "adc_isr_closed_loop_mixed": 348},
-    "cortex-m4": {"adc_isr": 305, "pwm_isr": 8, "tick": 509, "threshold_isr": 102,
+    "cortex-m4": {"adc_isr": 305, "pwm_isr": 8, "tick": 509, "threshold_isr": 103,
                   "adc_isr_closed_loop": 309, "adc_isr_bridge": 327, "adc_isr_boost": 327,
                   "adc_isr_mixed": 346, "adc_isr_boost_closed_loop": 333, "adc_isr_closed_loop_mixed": 348},
 }
 CORTEX_INSTRUCTIONS = {
-    "cortex-m0plus": {"adc_isr": 176, "pwm_isr": 4, "tick": 373, "threshold_isr": 63,
+    "cortex-m0plus": {"adc_isr": 176, "pwm_isr": 4, "tick": 373, "threshold_isr": 67,
                       "adc_isr_closed_loop": 167, "adc_isr_bridge": 195, "adc_isr_boost": 195,
                       "adc_isr_mixed": 203, "adc_isr_boost_closed_loop": 188, "adc_isr_closed_loop_mixed": 196},
-    "cortex-m3": {"adc_isr": 147, "pwm_isr": 2, "tick": 305, "threshold_isr": 53,
+    "cortex-m3": {"adc_isr": 147, "pwm_isr": 2, "tick": 305, "threshold_isr": 54,
                   "adc_isr_closed_loop": 149, "adc_isr_bridge": 160, "adc_isr_boost": 159,
                   "adc_isr_mixed": 170, "adc_isr_boost_closed_loop": 159, "adc_isr_closed_loop_mixed": 171},
-    "cortex-m4": {"adc_isr": 147, "pwm_isr": 2, "tick": 305, "threshold_isr": 53,
+    "cortex-m4": {"adc_isr": 147, "pwm_isr": 2, "tick": 305, "threshold_isr": 54,
                   "adc_isr_closed_loop": 149, "adc_isr_bridge": 159, "adc_isr_boost": 159,
                   "adc_isr_mixed": 170, "adc_isr_boost_closed_loop": 159, "adc_isr_closed_loop_mixed": 171},
 }
@@ -304,15 +314,16 @@ def budget_key(design: Design, handler: str) -> str:
     ADC handler runs the PI step (32-bit multiplies: slow on an 8-bit core) and has its own
     (after a boosted peak another: the threshold's conversion runs the first PI step),
     as have a full bridge's (a mixed-decay hold's: the fast part's end worked out with each
-    new compare) and a boosted peak's."""
+    new compare; under the current mode's off-time the one-shot times the fast part: the
+    plain bridge's) and a boosted peak's."""
     mixed = design.topology is not None and design.topology.bridge is not None and \
-        design.topology.bridge.hold_decay == "mixed"
+        design.topology.bridge.hold_decay == "mixed" and design.hold.current_mode is None
     if handler == "adc_isr" and regulation_of(design) == "closed_loop":
         if design.boost is not None:
             return "adc_isr_boost_closed_loop"
         return "adc_isr_closed_loop_mixed" if mixed else "adc_isr_closed_loop"
     if handler == "adc_isr" and design.topology is not None and design.topology.bridge is not None:
-        return "adc_isr_mixed" if design.topology.bridge.hold_decay == "mixed" else "adc_isr_bridge"
+        return "adc_isr_mixed" if mixed else "adc_isr_bridge"
     if handler == "adc_isr" and design.boost is not None:
         return "adc_isr_boost"
     return handler

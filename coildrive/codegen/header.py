@@ -188,9 +188,14 @@ def _topology_constants(d: Design, m: str) -> tuple[list[Constant], str]:
     out = [Constant(f"{m}_TOPOLOGY_{name.upper()}", number, f"switch topology: {name.replace('_', ' ')}")
            for name, number in TOPOLOGY_NUMBERS.items()]
     if t.bridge is not None and t.bridge.hold_decay == "mixed":
+        cm = d.hold.current_mode
+        how = ("the current-mode one-shot times HOLD_OFF_FAST_TICKS, then HOLD_OFF_SLOW_TICKS"
+               if cm is not None and cm.control != "hysteretic" else
+               "the hysteretic one-shot's HOLD_OFF_FAST_TICKS are this of the nominal slow-decay off-time"
+               if cm is not None else
+               "fast counts of each off-time = ((PERIOD - compare) x this + 32768) >> 16")
         out.append(Constant(f"{m}_HOLD_FAST_Q16", round(t.bridge.hold_fast_fraction * 65536),
-                            f"mixed decay: fast counts of each off-time = ((PERIOD - compare) x this "
-                            f"+ 32768) >> 16 ({t.bridge.hold_fast_fraction:.4g} of it)"))
+                            f"mixed decay: {how} ({t.bridge.hold_fast_fraction:.4g} of it)"))
     return out, f"{m}_TOPOLOGY_{t.name.upper()}"
 
 
@@ -300,17 +305,31 @@ def _current_header_constants(design: Design, macro: str) -> list[Constant]:
         return []
     m = macro
     if r.control == "hysteretic":
-        return [
+        out = [
             Constant(f"{m}_HOLD_HYSTERETIC", 1, "current-mode hold: hysteretic band"),
             Constant(f"{m}_HOLD_LOWER_CODE", r.lower_code, f"switch on below {r.lower_a:.4g} A"),
             Constant(f"{m}_HOLD_UPPER_CODE", r.upper_code, f"switch off at or above {r.upper_a:.4g} A"),
         ]
-    return [
+        if r.off_fast_ticks is not None:   # a full bridge's mixed decay: a one-shot for the fast part
+            out += [Constant(f"{m}_HOLD_OFF_PRESCALER", r.off_prescaler, "fast-part one-shot's timer divide ratio"),
+                    Constant(f"{m}_HOLD_OFF_FAST_TICKS", r.off_fast_ticks,
+                             f"mixed decay: each off-time all four open for {r.fast_time_s * 1e6:.5g} us "
+                             "(or to the lower threshold), then Q2 + Q4")]
+        return out
+    out = [
         Constant(f"{m}_HOLD_OFF_TIME", 1, "current-mode hold: peak threshold + fixed off time"),
         Constant(f"{m}_HOLD_PEAK_CODE", r.upper_code, f"switch off at or above {r.upper_a:.4g} A"),
         Constant(f"{m}_HOLD_OFF_PRESCALER", r.off_prescaler, "off-time timer divide ratio"),
         Constant(f"{m}_HOLD_OFF_TICKS", r.off_ticks, f"off time {r.off_time_s * 1e6:.5g} us"),
     ]
+    if r.off_fast_ticks is not None:   # a full bridge's mixed decay: the one-shot twice
+        tick = r.off_time_s / r.off_ticks
+        slow = r.off_ticks - r.off_fast_ticks
+        out += [Constant(f"{m}_HOLD_OFF_FAST_TICKS", r.off_fast_ticks,
+                         f"mixed decay: each off-time's fast part, all four open ({r.off_fast_ticks * tick * 1e6:.5g} us)"),
+                Constant(f"{m}_HOLD_OFF_SLOW_TICKS", slow,
+                         f"then its slow rest, Q2 + Q4 ({slow * tick * 1e6:.5g} us; 0: none)")]
+    return out
 
 
 def _current_relabel_fallback(design: Design, macro: str, constants: list) -> list:
@@ -346,13 +365,21 @@ def _current_header_checks(design: Design, macro: str) -> list[tuple[str, str]]:
         return [(f"{m}_HOLD_LOWER_CODE >= {m}_HOLD_UPPER_CODE || {m}_HOLD_LOWER_CODE < 1",
                  "hysteretic thresholds out of order"),
                 (f"{m}_HOLD_UPPER_CODE >= {m}_ADC_OVER_CURRENT_CODE",
-                 "upper hold threshold at or above the over-current threshold")]
+                 "upper hold threshold at or above the over-current threshold")] + (
+            [] if r.off_fast_ticks is None else [
+                (f"{m}_HOLD_OFF_FAST_TICKS < 2 || {m}_HOLD_OFF_FAST_TICKS - 1U > {m}_TIMER_COUNTER_MAX",
+                 "mixed decay: the fast part does not fit the timer counter"),
+                (f"{m}_HOLD_OFF_PRESCALER < 1 || {m}_HOLD_OFF_PRESCALER > {m}_TIMER_PRESCALER_MAX",
+                 "fast-part one-shot's prescaler outside the timer's range")])
     return [(f"{m}_HOLD_PEAK_CODE >= {m}_ADC_OVER_CURRENT_CODE",
              "peak hold threshold at or above the over-current threshold"),
             (f"{m}_HOLD_OFF_TICKS < 2 || {m}_HOLD_OFF_TICKS - 1U > {m}_TIMER_COUNTER_MAX",
              "off time does not fit the timer counter"),
             (f"{m}_HOLD_OFF_PRESCALER < 1 || {m}_HOLD_OFF_PRESCALER > {m}_TIMER_PRESCALER_MAX",
-             "off-time prescaler outside the timer's range")]
+             "off-time prescaler outside the timer's range")] + ([] if r.off_fast_ticks is None else [
+            (f"{m}_HOLD_OFF_FAST_TICKS < 2 || {m}_HOLD_OFF_FAST_TICKS + {m}_HOLD_OFF_SLOW_TICKS != "
+             f"{m}_HOLD_OFF_TICKS || ({m}_HOLD_OFF_SLOW_TICKS > 0 && {m}_HOLD_OFF_SLOW_TICKS < 2)",
+             "mixed decay: the off-time's fast and slow parts do not fit the one-shot")])
 
 
 # --------------------------------------------------------------------------- closed loop

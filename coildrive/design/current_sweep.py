@@ -48,12 +48,14 @@ REFINE_STEPS = 24
 
 
 def steady_state(drive: Drive, lp, lower_a, upper_a, off_time, delay) -> CurrentModeSteadyState:
-    """The current-mode steady state for the drive's control at loop ``lp``."""
-    if drive.hold.control == "hysteretic":
+    """The current-mode steady state for the drive's control at loop ``lp`` (a full bridge's
+    mixed decay: ``lp.mixed``; under hysteretic control ``off_time`` is then the fixed time
+    of each off-time's fast part, s)."""
+    if drive.hold.control == "hysteretic":   # (mixed decay: ``off_time`` is the fast one-shot's)
         return hysteretic_steady_state(lower_a, upper_a, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
-                                       lp.inductance, delay)
+                                       lp.inductance, delay, off_time, lp.mixed)
     return off_time_steady_state(upper_a, off_time, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
-                                 lp.inductance, delay)
+                                 lp.inductance, delay, lp.mixed)
 
 
 @dataclass(frozen=True)

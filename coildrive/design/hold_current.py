@@ -54,7 +54,7 @@ import numpy as np
 from ..config import Drive
 from ..errors import InputError
 from ..model.circuit import full_bridge, loop, split_decay, two_paths
-from ..model.current_mode import (CurrentModeSteadyState, hysteretic_steady_state,
+from ..model.current_mode import (CurrentModeSteadyState, MixedPath, hysteretic_steady_state,
                                   off_time_steady_state)
 from ..model.eddy import EddyCoil
 from ..model.flux import FluxCoil
@@ -208,6 +208,10 @@ def _size_band(drive: Drive, grid: CornerGrid, lsb: float, c0: int, full: int) -
         lo = np.maximum(c0 - b // 2, 1)[:, None]
         ss = hysteretic_steady_state(lo * lsb, (lo + b[:, None]) * lsb, lp.v_on, lp.r_on, lp.r_off,
                                      lp.v_off, lp.inductance, drive.hold.sense_delay)
+        if lp.mixed is not None:   # mixed decay: the fast part's time from the slow orbit's at nominal
+            ss = hysteretic_steady_state(lo * lsb, (lo + b[:, None]) * lsb, lp.v_on, lp.r_on, lp.r_off,
+                                         lp.v_off, lp.inductance, drive.hold.sense_delay,
+                                         drive.hold.fast_fraction * ss.t_off[:, :1], lp.mixed)
         return (_pick(drive, ss.frequency, ss.regulated),
                 bool(np.any(_fits(drive, ss.frequency, ss.regulated))), ss)
 
@@ -270,8 +274,27 @@ def _size_off_time(drive: Drive, grid: CornerGrid, peak_a: float) -> float:
     f_lo, f_hi, _ = allowed_range(drive)
     t = np.geomspace(0.01 / max(f_hi, drive.hold.frequency), 1.0 / min(f_lo, drive.hold.frequency), 400)
     ss = off_time_steady_state(peak_a, t[:, None], lp.v_on, lp.r_on, lp.r_off, lp.v_off,
-                               lp.inductance, drive.hold.sense_delay)
+                               lp.inductance, drive.hold.sense_delay, lp.mixed)
     return float(t[_pick(drive, ss.frequency, ss.regulated)])
+
+
+def _fast_one_shot(drive: Drive, grid: CornerGrid, lsb: float, c0: int, band: int) -> tuple:
+    """A full bridge's mixed decay under hysteretic control: each off-time's fast part is a
+    fixed time the firmware's one-shot makes, ``fast_fraction`` x the slow-decay off-time at
+    the nominal point (the coil at the hold's temperature) of the band centred on the hold
+    current (the band's sizing); ``(time s, prescaler, ticks, target s)`` on the board's
+    timer."""
+    lp = _sizing_loops(drive, grid)
+    lo = max(c0 - band // 2, 1)
+    ss = hysteretic_steady_state(lo * lsb, (lo + band) * lsb, lp.v_on, lp.r_on, lp.r_off, lp.v_off,
+                                 lp.inductance, drive.hold.sense_delay)
+    target = drive.hold.fast_fraction * float(np.ravel(ss.t_off)[0])
+    if not (bool(np.ravel(ss.regulated)[0]) and target > 0):
+        return 0.0, 1, 0, 0.0   # the threshold out of reach at the nominal point: no fast part (checked)
+    timer = drive.board.timer
+    t = solve_timer(timer.clock, timer.bits, timer.prescaler_max, 1.0 / target,
+                    drive.hold.frequency_tolerance, timer.prescalers)
+    return t.prescaler * t.period_ticks / timer.clock, t.prescaler, t.period_ticks, target
 
 
 def choose_thresholds(drive: Drive, grid: CornerGrid, peak_time: float = 0.0) -> Thresholds:
@@ -289,14 +312,16 @@ def choose_thresholds(drive: Drive, grid: CornerGrid, peak_time: float = 0.0) ->
     if h.control == "hysteretic":
         sized = h.band <= 0
         band = _size_band(drive, grid, lsb, c0, full) if sized else max(1, round(h.band / lsb))
+        fast = (0.0, 0, 0, 0.0) if not (full_bridge(drive) and h.fast_fraction > 0) else \
+            _fast_one_shot(drive, grid, lsb, c0, band)
         start = max(1, c0 - band - 2)
         code = None
         while code is None and start + band <= full:
             codes = np.arange(start, min(full - band, start + chunk - 1) + 1)
-            code = _smallest_holding(drive, grid, codes, band, 0.0, delay, lsb, peak_time)
+            code = _smallest_holding(drive, grid, codes, band, fast[0], delay, lsb, peak_time)
             start = int(codes[-1]) + 1
         lower = code if code is not None else min(c0, full - band)
-        return Thresholds("hysteretic", lsb, lower, lower + band, 0.0, 0, 0, 0.0, delay, sized)
+        return Thresholds("hysteretic", lsb, lower, lower + band, *fast, delay, sized)
     sized = h.off_time <= 0
     target = _size_off_time(drive, grid, c0 * lsb) if sized else h.off_time
     t = solve_timer(timer.clock, timer.bits, timer.prescaler_max, 1.0 / target,
@@ -373,7 +398,8 @@ def current_losses(drive: Drive, res: PointResults, cm: CurrentModeSteadyState) 
     sw = drive.switch
     return element_powers(drive, res.loop, cm.charge_on, cm.square_on, cm.charge_off,
                           cm.square_off, 1.0 / cm.period, cm.i_min, cm.i_max, cm.dcm,
-                          cm.frequency, sw.rise_time, sw.fall_time)
+                          cm.frequency, sw.rise_time, sw.fall_time, charge_fast=cm.charge_fast,
+                          square_fast=cm.square_fast)
 
 
 def _split_saving(drive: Drive, grid: CornerGrid, res: PointResults, cm: CurrentModeSteadyState,
@@ -669,7 +695,7 @@ def _mode_result(drive: Drive, th: Thresholds, grid: CornerGrid, cm: CurrentMode
         band_a=th.upper_a - th.lower_a if hyst else None,
         off_time_s=None if hyst else th.off_time_s,
         off_time_target_s=None if hyst else th.off_time_target_s,
-        off_prescaler=None if hyst else th.off_prescaler, off_ticks=None if hyst else th.off_ticks,
+        off_prescaler=None if hyst and fast_ticks(drive, th) is None else th.off_prescaler, off_ticks=None if hyst else th.off_ticks,
         sized_from_frequency=th.sized, sense_delay_s=th.delay_s,
         nominal_frequency_hz=nominal_frequency,
         min_frequency_hz=flo, min_frequency_corner=grid.label(k_lo), min_frequency_coil_temp_c=t_lo,
@@ -677,7 +703,21 @@ def _mode_result(drive: Drive, th: Thresholds, grid: CornerGrid, cm: CurrentMode
         allowed_min_frequency_hz=f_lo, allowed_max_frequency_hz=f_hi, allowed_max_source=f_src,
         min_duty=duties[0], max_duty=duties[1],
         shortest_segment_s=shortest, regulated_corners=int(np.sum(reg)),
-        corners=len(grid))
+        corners=len(grid), off_fast_ticks=fast_ticks(drive, th),
+        fast_time_s=None if fast_ticks(drive, th) is None else (
+            th.off_time_s if hyst else fast_ticks(drive, th) * th.off_time_s / th.off_ticks))
+
+
+def fast_ticks(drive: Drive, th: Thresholds) -> int | None:
+    """A full bridge's mixed decay: the off-timer counts of each off-time's fast part --
+    under the fixed off-time ``round(fast_fraction x off_ticks)`` (the firmware's one-shot
+    times the fast part, then the rest), under hysteretic control the one-shot's own
+    (:func:`_fast_one_shot`); ``None`` otherwise."""
+    if not (full_bridge(drive) and drive.hold.fast_fraction > 0):
+        return None
+    if th.control == "hysteretic":   # the one-shot times the fast part alone
+        return th.off_ticks
+    return int(round(drive.hold.fast_fraction * th.off_ticks))
 
 
 def _current_checks(drive: Drive, th: Thresholds, r: CurrentModeResult, adc, res: PointResults,
@@ -743,6 +783,8 @@ def _current_checks(drive: Drive, th: Thresholds, r: CurrentModeResult, adc, res
                   f"off time {th.off_time_s * 1e6:.5g} us = {th.off_ticks} ticks at prescaler "
                   f"{th.off_prescaler} of the {t.clock:.6g} Hz timer, for {th.off_time_target_s * 1e6:.5g} us "
                   f"(error {err:+.3%}, allowed {drive.hold.frequency_tolerance:.2%})"))
+    if r.off_fast_ticks is not None:
+        out.append(_fast_timer_check(drive, th, r.off_fast_ticks))
     sample = 1.0 / drive.board.adc.sample_rate
     seg_ok = th.delay_s >= sample or r.shortest_segment_s >= MIN_SAMPLES_PER_SEGMENT * sample
     add(Check("current_mode_sampling", bool(seg_ok),
@@ -752,6 +794,37 @@ def _current_checks(drive: Drive, th: Thresholds, r: CurrentModeResult, adc, res
                  "choice): a sampled threshold trips up to one sample late; give hold.sense_delay "
                  "(e.g. one sample period) or use a comparator"), severity="warning"))
     return out
+
+
+def _fast_timer_check(drive: Drive, th: Thresholds, fast: int) -> Check:
+    """Mixed decay under the fixed off-time: the one-shot times the fast part (``fast``
+    counts), then the slow rest; each at least two counts (as the off-time), or the slow
+    rest none (a fraction of 1). The model takes ``fast_fraction x t_off``: the rounding
+    to whole counts is reported, and fails where it is beyond the frequency tolerance."""
+    if th.control == "hysteretic" and not th.off_time_target_s > 0:
+        return Check("current_mode_fast_timer", False,
+                     "mixed decay: no slow-decay off-time at the nominal point to take fast_fraction of (the "
+                     "upper threshold out of reach there: see current_mode_regulated)")
+    if th.control == "hysteretic":
+        err = (th.off_time_s - th.off_time_target_s) / th.off_time_target_s
+        ok = fast >= 2 and abs(err) <= drive.hold.frequency_tolerance
+        return Check("current_mode_fast_timer", bool(ok),
+                     f"mixed decay: each off-time fast for {th.off_time_s * 1e6:.5g} us = {fast} counts at "
+                     f"prescaler {th.off_prescaler} (or to the lower threshold, if sooner), for "
+                     f"{th.off_time_target_s * 1e6:.5g} us = fast_fraction {drive.hold.fast_fraction:g} x the "
+                     f"slow-decay off-time at the nominal point (error {err:+.3%}, allowed "
+                     f"{drive.hold.frequency_tolerance:.2%})" + ("" if ok else " -- the timer cannot make it: "
+                                                                  "change fast_fraction or the band"))
+    slow = th.off_ticks - fast
+    err = (fast / th.off_ticks - drive.hold.fast_fraction) if th.off_ticks else 0.0
+    ok = fast >= 2 and (slow >= 2 or slow == 0) and abs(err) <= drive.hold.frequency_tolerance
+    return Check("current_mode_fast_timer", bool(ok),
+                 f"mixed decay: each off-time's fast part {fast} of its {th.off_ticks} off-timer counts, the "
+                 f"slow rest {slow} (fast_fraction {drive.hold.fast_fraction:g}; the counts give "
+                 f"{fast / max(th.off_ticks, 1):.5g}, {err:+.3g} of the off-time, allowed "
+                 f"{drive.hold.frequency_tolerance:.2%})" + ("" if ok else " -- each part needs at least 2 "
+                                                              "counts and the rounding within the tolerance: "
+                                                              "lengthen hold.off_time or change fast_fraction"))
 
 
 def _step_check(drive: Drive, th: Thresholds, cm: CurrentModeSteadyState, res: PointResults,
@@ -798,18 +871,33 @@ def actuation(design: Design, supply: float, coil_temp: float, hold_time: float,
 
 def threshold_hold(th: Thresholds, t: float, i: float, end: float, v: float, r_on: float,
                    r_off: float, v_off: float, ind, points: int, ts: list, cs: list,
-                   ons: list) -> tuple[float, float, list]:
+                   ons: list, mixed=None, marks: list | None = None) -> tuple[float, float, list]:
     """The current-mode hold ``th`` from ``t`` s and ``i`` A (the end of the peak) until the
     first turn-off edge at or after ``end`` s, in closed-form segments of inductance
     ``ind`` (H, or one point's curve), every switch edge a sample: each segment's samples
     (s, A, 0/1) appended to ``ts``, ``cs``, ``ons``. Returns ``(t_off s, i_off A,
     [start s, current A] of the last on-time or [])``. Where the threshold is out of reach
-    (``V / R_on`` at or below it) the switch stays on to ``end``."""
+    (``V / R_on`` at or below it) the switch stays on to ``end``.
+
+    ``mixed`` (a full bridge's :class:`~coildrive.model.pwm.MixedDecay` at this point, a
+    linear coil): each off-time's first ``mixed.fraction`` (hysteretic: the one-shot's
+    ``th.off_time_s``, or to the lower threshold if sooner) decays fast (all four open; a
+    sample where the current dies), the rest slowly; ``marks`` then gets,
+    per segment appended, a 2-row array: the current flowing in the fast path, all four open."""
     a = v / r_on   # the current the on-time rises toward, A
     hyst = th.control == "hysteretic"
     upper, lower, d = th.upper_a, th.lower_a, th.delay_s
     big = 40 * points
     last_on = []
+    seg = None
+    if mixed is not None:
+        from ..model.mixed_waveform import LinearSegments
+
+        seg = LinearSegments(v, r_on, r_off, float(ind), mixed)
+
+    def mark(n, flowing=None):
+        if marks is not None:
+            marks.append(np.zeros((2, n), bool) if flowing is None else np.stack([flowing, np.ones(n, bool)]))
 
     def on_seg(t0, i0, dur):
         last_on[:] = [t0, i0]
@@ -817,6 +905,7 @@ def threshold_hold(th: Thresholds, t: float, i: float, end: float, v: float, r_o
         ts.append(t0 + x)
         cs.append(rise_current(x, i0, v, r_on, ind))
         ons.append(np.ones_like(x))
+        mark(x.size)
         return t0 + dur, float(cs[-1][-1])
 
     def off_seg(t0, i0, dur, n=points):
@@ -824,6 +913,18 @@ def threshold_hold(th: Thresholds, t: float, i: float, end: float, v: float, r_o
         ts.append(t0 + x)
         cs.append(decay_current(x, i0, r_off, v_off, ind))
         ons.append(np.zeros_like(x))
+        mark(x.size)
+        return t0 + dur, float(cs[-1][-1])
+
+    def fast_seg(t0, i0, dur, n=points):
+        x = np.linspace(0.0, dur, n + 1)[1:]
+        tz = float(seg.fast_zero(i0))
+        if tz < dur:   # the body diodes block: a sample at the zero
+            x = np.sort(np.append(x, tz))
+        ts.append(t0 + x)
+        cs.append(seg.fast(i0, x))
+        ons.append(np.zeros_like(x))
+        mark(x.size, (cs[-1] > 0) | (x <= tz))
         return t0 + dur, float(cs[-1][-1])
 
     regulated = upper < a
@@ -831,8 +932,18 @@ def threshold_hold(th: Thresholds, t: float, i: float, end: float, v: float, r_o
     while t < end and regulated:
         # off: to the lower threshold (+ delay) or for the fixed off time; the first one,
         # down from the peak, gets as many samples as the peak
-        dur = float(decay_time(lower, i, r_off, v_off, ind)) + d if hyst else th.off_time_s
-        t, i = off_seg(t, i, dur, big if first else points)
+        n = big if first else points
+        if seg is not None:   # mixed decay: the fast part, then the slow one
+            t_fast = th.off_time_s if hyst else mixed.fraction * th.off_time_s
+            dur = th.off_time_s
+            if hyst:   # to the lower threshold (+ delay), in the fast part or the slow one
+                dur = float(MixedPath(i, t_fast, seg.r_f, seg.v_f, r_off, float(ind)).time_to(lower)) + d
+            t, i = fast_seg(t, i, min(t_fast, dur), n)
+            if dur > t_fast:
+                t, i = off_seg(t, i, dur - t_fast, n)
+        else:
+            dur = float(decay_time(lower, i, r_off, v_off, ind)) + d if hyst else th.off_time_s
+            t, i = off_seg(t, i, dur, n)
         first = False
         # on: to the upper/peak threshold, + delay (none while the current is still above
         # the peak threshold after the peak phase: the switch turns straight off again)
@@ -855,12 +966,13 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
     on-time, or after the turn-off for a negative lead; a ``bypass_on`` column). On a
     full bridge the off segments recirculate through the two low-side switches (slow
     decay) and the release opens all four (fast decay into the bus): the bridge's
-    per-switch columns and coil voltage.
+    per-switch columns and coil voltage; with mixed decay (the fixed off-time) each
+    off-time's first ``hold.fast_fraction`` opens all four too.
 
     With an ``[armature]`` the peak is the moving armature's run and the hold the
     thresholds' segments on the seated coil (:func:`_armature_actuation`)."""
-    from ..model.waveform import (boost_columns, one_point, peak_samples, release_waveform,
-                                  split_release, split_waveform)
+    from ..model.waveform import (boost_columns, mixed_columns, one_point, peak_samples,
+                                  release_waveform, split_release, split_waveform)
 
     if drive.armature is not None:
         return _armature_actuation(drive, th, supply, coil_temp, peak_time, hold_time, r_factor,
@@ -884,8 +996,10 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
     big = 40 * points
     ts, cs, ons = [], [], []
     t, i = peak_time, peak_samples(peak_time, v, r_on, ind, big, ts, cs, ons, drive)
+    n_peak = sum(len(x) for x in ts)
+    marks = [] if lp.mixed is not None else None
     t, i, last_on = threshold_hold(th, t, i, peak_time + hold_time, v, r_on, r_off, v_off, ind,
-                                   points, ts, cs, ons)
+                                   points, ts, cs, ons, lp.mixed, marks)
     t_off_edge = t
     if split_decay(drive):
         fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
@@ -899,6 +1013,9 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
     # a full bridge: the hold's off-times decayed slowly (lp), the release decays fast
     fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") if two_paths(drive) else None
     w = release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_off_edge, i, big, label, fast)
+    if marks:   # a mixed-decay hold: its fast parts all four open
+        m = np.concatenate(marks, axis=1)
+        w = mixed_columns(drive, w, fast, supply, t_off_edge, n_peak, m[0], m[1])
     return boost_columns(drive, w, supply, peak_time, r_on, ind)
 
 

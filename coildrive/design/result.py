@@ -120,7 +120,11 @@ class CurrentModeResult:
     the duties and the shortest segment cover every coil temperature from cold (the
     ambient) to settled at each corner (:mod:`coildrive.design.current_sweep`): each
     extreme names its corner (``*_corner``, the corner grid's label) and the coil's
-    temperature there (``*_coil_temp_c``)."""
+    temperature there (``*_coil_temp_c``). A full bridge's mixed decay (the fixed off-time):
+    ``off_fast_ticks``, the off-timer counts of each off-time's fast part
+    (``round(fast_fraction x off_ticks)``), ``fast_time_s`` its time; under hysteretic control
+    the one-shot's counts at ``off_prescaler`` and time (the fast part ends there or at the
+    lower threshold). The keys only then."""
 
     control: str
     sense_position: str
@@ -152,6 +156,8 @@ class CurrentModeResult:
     shortest_segment_s: float
     regulated_corners: int
     corners: int
+    off_fast_ticks: int | None = None
+    fast_time_s: float | None = None
 
 
 @dataclass(frozen=True)
@@ -820,6 +826,9 @@ class Design(Verdict):
         if self.peak_table is not None:
             out["peak_table"] = asdict(self.peak_table)
         if current_mode is not None:
+            for key in ("off_fast_ticks", "fast_time_s"):   # mixed decay's only (older outputs keep their bytes)
+                if current_mode[key] is None:
+                    del current_mode[key]
             out["current_mode"] = current_mode
         if closed_loop is not None:
             out["closed_loop"] = closed_loop

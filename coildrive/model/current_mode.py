@@ -22,6 +22,22 @@ timer:
   while the switch is on, so it works with the sense resistor under the switch too,
   and each period's bottom depends on the peak alone (no sub-harmonic instability).
 
+Mixed decay on a full bridge (``mixed``, a :class:`~coildrive.model.pwm.MixedDecay`; the
+fixed off-time control, a linear coil): each off-time's first ``t_f = m t_off`` decays
+fast (all four switches open, ``L di/dt = -(R_f i + V_f)``, ``V_f = V_bus + 2 V_d``, the
+body diodes blocking at zero), the rest ``t_s = (1 - m) t_off`` slowly through the loop's
+``R_off`` (``V_off = 0``). The off-time still starts at the peak, so the orbit is closed
+form with no fixed point::
+
+    i_f    = (I_top + F) e^(-t_f R_f / L) - F,  F = V_f / R_f   (0 if the current dies first)
+    bottom = i_f e^(-t_s R_off / L)
+
+and ``t_on`` as above; ``charge_fast``/``square_fast`` are the fast segment's integrals
+(the bus takes ``V_bus x charge_fast`` back every period). The hysteretic control's fast
+part is a fixed time ``t_f`` (a one-shot from the turn-off, ``fast_time``): the off-time
+runs on that path -- fast until ``t_f``, slow after -- down to the lower threshold, which
+may come in the fast part (the switch then turns on with the fast part cut short).
+
 ``delay`` is the time from a threshold crossing to the switch edge (comparator, ADC
 conversion, interrupt latency): the current runs on for that long past each threshold,
 so the ripple's top is ``A + (I_hi - A) e^(-delay/tau_on)`` and the bottom the decay
@@ -79,7 +95,7 @@ import numpy as np
 from . import eddy, flux
 from .eddy import EddyCoil
 from .flux import FluxCoil
-from .pwm import PwmSteadyState
+from .pwm import MixedDecay, PwmSteadyState
 from .rl import decay_current, decay_integrals, decay_time, rise_current, rise_integrals, rise_time
 
 
@@ -115,6 +131,8 @@ class CurrentModeSteadyState:
     eddy_energy: np.ndarray | None = None
     chatter: np.ndarray | None = None
     magnetising_rms: np.ndarray | None = None
+    charge_fast: np.ndarray | float = 0.0
+    square_fast: np.ndarray | float = 0.0
 
     def as_pwm(self) -> PwmSteadyState:
         """The same steady state in the voltage-mode container (same field meanings), so
@@ -124,7 +142,8 @@ class CurrentModeSteadyState:
                               period=self.period, charge_on=self.charge_on, square_on=self.square_on,
                               charge_off=self.charge_off, square_off=self.square_off,
                               terminal_min=self.terminal_min, terminal_max=self.terminal_max,
-                              eddy_energy=self.eddy_energy, magnetising_rms=self.magnetising_rms)
+                              eddy_energy=self.eddy_energy, magnetising_rms=self.magnetising_rms,
+                              charge_fast=self.charge_fast, square_fast=self.square_fast)
 
 
 def _unregulated(bottom, top, t_on, t_off, conduction, a, regulated):
@@ -139,7 +158,6 @@ def _finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, indu
     a = v_on / r_on
     bottom, top, t_on, t_off, conduction = _unregulated(bottom, top, t_on, t_off, conduction, a,
                                                         regulated)
-    period = t_on + t_off
     if isinstance(inductance, FluxCoil):
         # the curve's segments between their known end currents (no current-after-time
         # search): on from the bottom to the top, off from the top back to the bottom
@@ -154,6 +172,13 @@ def _finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, indu
     else:
         q_on, s_on = rise_integrals(t_on, bottom, v_on, r_on, inductance)
         q_off, s_off = decay_integrals(conduction, top, r_off, v_off, inductance)
+    return _state(bottom, top, t_on, t_off, conduction, q_on, s_on, q_off, s_off, regulated)
+
+
+def _state(bottom, top, t_on, t_off, conduction, q_on, s_on, q_off, s_off, regulated,
+           **extra) -> CurrentModeSteadyState:
+    """The steady state from the orbit's ends, times and integrals (``extra``: more fields)."""
+    period = t_on + t_off
     mean = (q_on + q_off) / period
     rms = np.sqrt(np.maximum((s_on + s_off) / period, 0.0))
     frequency = np.where(regulated, 1.0 / period, 0.0)
@@ -161,7 +186,7 @@ def _finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, indu
         i_min=bottom, i_max=top, mean=mean, rms=rms, ripple=top - bottom, t_on=t_on, t_off=t_off,
         period=period, frequency=frequency, duty=t_on / period, regulated=regulated,
         dcm=regulated & (conduction < t_off), conduction_off=conduction, charge_on=q_on,
-        square_on=s_on, charge_off=q_off, square_off=s_off)
+        square_on=s_on, charge_off=q_off, square_off=s_off, **extra)
 
 
 def _broadcast(values, inductance):
@@ -184,12 +209,16 @@ def _broadcast(values, inductance):
 
 
 def hysteretic_steady_state(i_lo, i_hi, v_on, r_on, r_off, v_off, inductance,
-                            delay=0.0) -> CurrentModeSteadyState:
+                            delay=0.0, fast_time=0.0, mixed: MixedDecay | None = None) -> CurrentModeSteadyState:
     """Hysteretic band ``i_lo``..``i_hi`` A (``0 <= i_lo < i_hi``), ``delay`` s per edge.
 
     Loop arguments as :func:`coildrive.model.pwm.pwm_steady_state` (V, ohm, H; ``v_off``
-    > 0 opposes the freewheeling current).
+    > 0 opposes the freewheeling current). ``mixed``: a full bridge's mixed decay, each
+    off-time fast for the fixed ``fast_time`` s (or until the lower threshold, if sooner),
+    then slow (a linear coil; module docstring).
     """
+    if mixed is not None and mixed.fraction > 0:
+        return _mixed_orbit("hysteretic", i_lo, i_hi, fast_time, v_on, r_on, r_off, inductance, delay, mixed)
     i_lo, i_hi, v_on, r_on, r_off, v_off, delay, inductance = _broadcast(
         (i_lo, i_hi, v_on, r_on, r_off, v_off, delay), inductance)
     if isinstance(inductance, EddyCoil):
@@ -211,8 +240,11 @@ def hysteretic_steady_state(i_lo, i_hi, v_on, r_on, r_off, v_off, inductance,
 
 
 def off_time_steady_state(i_peak, t_off, v_on, r_on, r_off, v_off, inductance,
-                          delay=0.0) -> CurrentModeSteadyState:
-    """Peak threshold ``i_peak`` A, fixed off time ``t_off`` s, ``delay`` s to turn off."""
+                          delay=0.0, mixed: MixedDecay | None = None) -> CurrentModeSteadyState:
+    """Peak threshold ``i_peak`` A, fixed off time ``t_off`` s, ``delay`` s to turn off;
+    ``mixed``: a full bridge's mixed decay (a linear coil; module docstring)."""
+    if mixed is not None and mixed.fraction > 0:
+        return _mixed_orbit("off_time", 0.0, i_peak, t_off, v_on, r_on, r_off, inductance, delay, mixed)
     i_peak, t_off, v_on, r_on, r_off, v_off, delay, inductance = _broadcast(
         (i_peak, t_off, v_on, r_on, r_off, v_off, delay), inductance)
     if isinstance(inductance, EddyCoil):
@@ -228,6 +260,73 @@ def off_time_steady_state(i_peak, t_off, v_on, r_on, r_off, v_off, inductance,
     t_on = rise_time(pk, np.minimum(bottom, pk), v_on, r_on, inductance) + delay
     return _finish(bottom, top, t_on, t_off, conduction, v_on, r_on, r_off, v_off, inductance,
                    regulated)
+
+
+class MixedPath:
+    """An off-time of a full bridge's mixed decay from ``top`` A: fast for ``t_fast`` s
+    (``L di/dt = -(r_f i + v_f)``, blocking at zero), then slow (``L di/dt = -r_s i``);
+    linear coil ``ind`` H, arrays broadcast together."""
+
+    def __init__(self, top, t_fast, r_f, v_f, r_s, ind):
+        self.top, self.t_fast, self.r_f, self.v_f, self.r_s, self.ind = top, t_fast, r_f, v_f, r_s, ind
+        self.to_zero = decay_time(0.0, top, r_f, v_f, ind)
+        self.dies = self.to_zero <= t_fast                                 # the body diodes block
+        self.i_fast = np.where(self.dies, 0.0, np.maximum(decay_current(t_fast, top, r_f, v_f, ind), 0.0))
+
+    def current(self, t):
+        """The current ``t`` s into the off-time (A)."""
+        fast = decay_current(np.minimum(t, self.t_fast), self.top, self.r_f, self.v_f, self.ind)
+        slow = decay_current(np.maximum(t - self.t_fast, 0.0), self.i_fast, self.r_s, 0.0, self.ind)
+        return np.where(t <= self.t_fast, fast, np.where(self.dies, 0.0, slow))
+
+    def time_to(self, level):
+        """The time to ``level`` A (``0 < level <= top``), in the fast part or the slow one (s)."""
+        in_fast = level >= self.i_fast
+        t1 = decay_time(np.minimum(level, self.top), self.top, self.r_f, self.v_f, self.ind)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            t2 = self.t_fast + decay_time(np.minimum(level, self.i_fast), self.i_fast, self.r_s, 0.0, self.ind)
+        return np.where(in_fast, t1, t2)
+
+    def integrals(self, t):
+        """``(q_fast, s_fast, q_slow, s_slow)`` over the first ``t`` s (A*s, A^2*s) and the
+        time the current flows in them (s)."""
+        q_f, s_f = decay_integrals(np.minimum(np.minimum(t, self.t_fast), self.to_zero), self.top,
+                                   self.r_f, self.v_f, self.ind)
+        slow = np.where(self.dies, 0.0, np.maximum(t - self.t_fast, 0.0))
+        q_s, s_s = decay_integrals(slow, self.i_fast, self.r_s, 0.0, self.ind)
+        return q_f, s_f, q_s, s_s, np.where(self.dies, np.minimum(t, self.to_zero), t)
+
+
+def _mixed_orbit(control, i_lo, level, t_off, v_on, r_on, r_off, inductance, delay,
+                 mixed: MixedDecay) -> CurrentModeSteadyState:
+    """The current-mode orbit with a full bridge's mixed decay (a linear coil): off at the
+    upper/peak threshold ``level`` A (+ the delay's run-on), then fast for ``t_off`` s of a
+    fixed off-time's ``mixed.fraction`` (``control`` ``"off_time"``) or, hysteretic, for the
+    fixed one-shot time ``t_off`` s, the rest slow; the off-time ends after ``t_off`` s or at
+    the lower threshold ``i_lo`` A (+ the delay)."""
+    if isinstance(inductance, (FluxCoil, EddyCoil)):
+        raise ValueError("a current-mode mixed-decay hold is modelled for a linear coil")
+    i_lo, level, t_off, v_on, r_on, r_off, delay, ind, r_f, v_f = np.broadcast_arrays(
+        *(np.asarray(x, float) for x in (i_lo, level, t_off, v_on, r_on, r_off, delay, inductance,
+                                         mixed.r_fast, mixed.v_fast)))
+    a = v_on / r_on
+    regulated = level < a
+    pk = np.where(regulated, level, 0.5 * a)
+    top = rise_current(delay, pk, v_on, r_on, ind)                     # run-on past the threshold
+    hyst = control == "hysteretic"
+    path = MixedPath(top, t_off if hyst else mixed.fraction * t_off, r_f, v_f, r_off, ind)
+    if hyst:
+        lo = np.clip(i_lo, 1e-300, pk)
+        t_off = path.time_to(lo) + delay
+    bottom = path.current(t_off)
+    t_on = rise_time(pk, np.minimum(bottom, pk), v_on, r_on, ind) + delay
+    q_f, s_f, q_s, s_s, conduction = path.integrals(t_off)
+    bottom, top, t_on, t_off, conduction = _unregulated(bottom, top, t_on, t_off, conduction, a,
+                                                        regulated)
+    q_on, s_on = rise_integrals(t_on, bottom, v_on, r_on, ind)
+    q_f, s_f, q_s, s_s = (np.where(regulated, x, 0.0) for x in (q_f, s_f, q_s, s_s))
+    return _state(bottom, top, t_on, t_off, conduction, q_on, s_on, q_f + q_s, s_f + s_s, regulated,
+                  charge_fast=q_f, square_fast=s_f)
 
 
 # ------------------------------------------------------------------- an eddy-current term

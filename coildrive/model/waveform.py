@@ -251,11 +251,23 @@ def _mixed_actuation(drive: Drive, lp, supply: float, coil_temp: float, peak_tim
     fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
     w = release_waveform(drive, lp, supply, ts, cs, ons, peak_time, t_off, i_off, 40 * points,
                          label, release_lp=fast)
+    return mixed_columns(drive, w, fast, supply, t_off, n_peak, fast_hold, fast_part)
+
+
+def mixed_columns(drive: Drive, w: Waveform, fast, supply: float, t_off: float, start: int,
+                  fast_hold, fast_part) -> Waveform:
+    """A full bridge's waveform ``w`` with a mixed-decay hold's fast parts: from sample
+    ``start`` on, ``fast_hold`` marks the samples whose current flows in the fast path
+    (the switches then see the fast loop ``fast``'s voltage) and ``fast_part`` those with
+    all four open (each fast part, the current flowing or not); the per-switch columns
+    and the coil voltage follow (:func:`_bridge_columns`; the final turn-off at ``t_off``
+    s)."""
+    n = len(fast_hold)
     mask = np.zeros(len(w.time), bool)
-    mask[n_peak:n_peak + len(t_hold)] = fast_hold
+    mask[start:start + n] = fast_hold
     v_sw = np.where(mask, fast.switch_voltage(drive, w.current), w.switch_voltage)
     all_open = np.zeros(len(w.time), bool)
-    all_open[n_peak:n_peak + len(t_hold)] = fast_part
+    all_open[start:start + n] = fast_part
     v_sw, _, extra = _bridge_columns(drive, supply, w.time, w.current, w.switch_on, v_sw, t_off,
                                      all_open=all_open)
     return dataclasses.replace(w, switch_voltage=v_sw, **extra)

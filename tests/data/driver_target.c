@@ -82,7 +82,7 @@ void coil_port_threshold(uint8_t enable, coil_adc_t low, coil_adc_t high)
     log_add((uint8_t)(enable ? 'w' : 'u'), (int32_t)((uint32_t)low * 65536UL + (uint32_t)high));
 }
 #endif
-#ifdef COIL_HOLD_OFF_TIME
+#if defined(COIL_HOLD_OFF_TIME) || defined(COIL_HOLD_OFF_FAST_TICKS)   /* (mixed decay: a one-shot) */
 #define coil_off_timer_isr_or_none() coil_off_timer_isr()
 void coil_port_off_timer(uint16_t counts) { off_pending = 1u; log_add('o', (int32_t)counts); }
 #else
