@@ -53,11 +53,13 @@ def _params(**change) -> ArmatureParams:
     return ArmatureParams.make(**{**POINT, **change})
 
 
-def circuit(g: dict, c_b: float, r_b: float, r_e: float | None = None):
+def circuit(g: dict, c_b: float, r_b: float, r_e: float | None = None, bus: tuple | None = None):
     """``(loop, rhs)`` of :func:`reference`'s equations over ``y = (i, x, v, u, int i^2 dt,
     core heat, damping heat)``: ``loop(mode, y)`` the inductance's voltage V and the terminal
     current A in ``mode`` (``"boost"``, ``"on"``, ``"off"``), ``rhs(mode, free)`` solve_ivp's
-    right-hand side (``free`` False: the armature at rest at its stop)."""
+    right-hand side (``free`` False: the armature at rest at its stop). ``bus = (R_s, C,
+    V_src)``: the hold from a drooping main bus, ``u`` its capacitor (``C du/dt = (V_src -
+    u) / R_s`` less the terminal current while the switch is on) in place of ``g["v_on"]``."""
     r_boost = g["r_on"] + r_b
     ind, slope, opening = current_form(g)
 
@@ -67,7 +69,7 @@ def circuit(g: dict, c_b: float, r_b: float, r_e: float | None = None):
         if mode == "boost":
             drive, r = u, r_boost
         elif mode == "on":
-            drive, r = g["v_on"], g["r_on"]
+            drive, r = (g["v_on"] if bus is None else u), g["r_on"]
         else:   # freewheeling, while the diode conducts
             drive, r = -g["v_off"], g["r_off"]
         if r_e is None:
@@ -85,7 +87,8 @@ def circuit(g: dict, c_b: float, r_b: float, r_e: float | None = None):
             v_l, term = loop(mode, y)
             di = (v_l - i * slope(x) * v) / ind(x)
             acc = (opening(x) + 0.5 * i * i * slope(x) - g["damping"] * v) / g["mass"] if free else 0.0
-            du = -term / c_b if mode == "boost" else 0.0
+            du = -term / c_b if mode == "boost" else 0.0 if bus is None else (
+                ((bus[2] - u) / bus[0] - (term if mode == "on" else 0.0)) / bus[1])
             core = 0.0 if r_e is None else v_l * v_l / r_e     # the eddy resistance's heat
             return [di, v if free else 0.0, acc, du, term * term, core, g["damping"] * v * v if free else 0.0]
         return f
