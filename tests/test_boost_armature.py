@@ -53,24 +53,17 @@ def _params(**change) -> ArmatureParams:
     return ArmatureParams.make(**{**POINT, **change})
 
 
-def reference(g: dict, v_b: float, c_b: float, r_b: float, trip: float, duty: float, period: float,
-              t_end: float, r_e: float | None = None, control=None, fast=None) -> dict:
-    """solve_ivp (DOP853) of the module docstring's equations, piece by piece. ``r_e``: an
-    eddy resistance across the inductance -- ``i`` is then the inductance's current, the
-    loop carries the terminal current ``(V + R_e i)/(R + R_e)`` (off: ``(R_e i - V_off)/(R_off
-    + R_e)`` while positive, else 0), the inductance sees ``R_e`` times the difference, the
-    threshold is on the terminal current and the capacitor feeds it. Carries ``int i^2 dt``
-    (the terminal current), the eddy resistance's heat ``int v_L^2 / R_e dt`` and the
-    damping's ``int c v^2 dt`` (out: ``sq``, ``core``, ``damp``). ``control``: ``(duty_of,
-    fraction)`` for a hold whose duty is set period by period (a closed loop): each period's
-    duty is ``duty_of(samples)`` from the currents converted so far, one a period at
-    ``fraction`` of it (``duty`` unused). ``fast``: ``(fraction, R_fast, V_fast)``, a full
-    bridge's mixed-decay hold -- the first ``fraction`` of each off-time ``-(R_fast i +
-    V_fast)`` while ``i > 0`` (all four open, the body diodes into the bus), the rest the
-    ``off`` path."""
-    from scipy.integrate import solve_ivp
-
-    s = g["stroke"]
+def circuit(g: dict, c_b: float, r_b: float, r_e: float | None = None, bus: tuple | None = None,
+            fast=None):
+    """``(loop, rhs)`` of :func:`reference`'s equations over ``y = (i, x, v, u, int i^2 dt,
+    core heat, damping heat)``: ``loop(mode, y)`` the inductance's voltage V and the terminal
+    current A in ``mode`` (``"boost"``, ``"on"``, ``"off"``, ``"fast"``), ``rhs(mode, free)``
+    solve_ivp's right-hand side (``free`` False: the armature at rest at its stop). ``bus =
+    (R_s, C, V_src)``: the hold from a drooping main bus, ``u`` its capacitor (``C du/dt =
+    (V_src - u) / R_s`` less the terminal current while the switch is on) in place of
+    ``g["v_on"]``. ``fast``: ``(fraction, R_fast, V_fast)``, a full bridge's mixed-decay
+    hold's fast path ``-(R_fast i + V_fast)`` while the current flows (all four open, the
+    body diodes into the bus)."""
     r_boost = g["r_on"] + r_b
     ind, slope, opening = current_form(g)
 
@@ -80,7 +73,7 @@ def reference(g: dict, v_b: float, c_b: float, r_b: float, trip: float, duty: fl
         if mode == "boost":
             drive, r = u, r_boost
         elif mode == "on":
-            drive, r = g["v_on"], g["r_on"]
+            drive, r = (g["v_on"] if bus is None else u), g["r_on"]
         elif mode == "fast":   # all four open: into the bus through two body diodes
             drive, r = -fast[2], fast[1]
         else:   # freewheeling, while the diode conducts
@@ -100,10 +93,34 @@ def reference(g: dict, v_b: float, c_b: float, r_b: float, trip: float, duty: fl
             v_l, term = loop(mode, y)
             di = (v_l - i * slope(x) * v) / ind(x)
             acc = (opening(x) + 0.5 * i * i * slope(x) - g["damping"] * v) / g["mass"] if free else 0.0
-            du = -term / c_b if mode == "boost" else 0.0
+            du = -term / c_b if mode == "boost" else 0.0 if bus is None else (
+                ((bus[2] - u) / bus[0] - (term if mode == "on" else 0.0)) / bus[1])
             core = 0.0 if r_e is None else v_l * v_l / r_e     # the eddy resistance's heat
             return [di, v if free else 0.0, acc, du, term * term, core, g["damping"] * v * v if free else 0.0]
         return f
+    return loop, rhs
+
+
+def reference(g: dict, v_b: float, c_b: float, r_b: float, trip: float, duty: float, period: float,
+              t_end: float, r_e: float | None = None, control=None, fast=None) -> dict:
+    """solve_ivp (DOP853) of the module docstring's equations, piece by piece. ``r_e``: an
+    eddy resistance across the inductance -- ``i`` is then the inductance's current, the
+    loop carries the terminal current ``(V + R_e i)/(R + R_e)`` (off: ``(R_e i - V_off)/(R_off
+    + R_e)`` while positive, else 0), the inductance sees ``R_e`` times the difference, the
+    threshold is on the terminal current and the capacitor feeds it. Carries ``int i^2 dt``
+    (the terminal current), the eddy resistance's heat ``int v_L^2 / R_e dt`` and the
+    damping's ``int c v^2 dt`` (out: ``sq``, ``core``, ``damp``). ``control``: ``(duty_of,
+    fraction)`` for a hold whose duty is set period by period (a closed loop): each period's
+    duty is ``duty_of(samples)`` from the currents converted so far, one a period at
+    ``fraction`` of it (``duty`` unused). ``fast``: ``(fraction, R_fast, V_fast)``, a full
+    bridge's mixed-decay hold -- the first ``fraction`` of each off-time ``-(R_fast i +
+    V_fast)`` while ``i > 0`` (all four open, the body diodes into the bus), the rest the
+    ``off`` path."""
+    from scipy.integrate import solve_ivp
+
+    s = g["stroke"]
+    _, slope, opening = current_form(g)
+    loop, rhs = circuit(g, c_b, r_b, r_e, fast=fast)
 
     opts = dict(method="DOP853", rtol=1e-11, atol=1e-14)
 
@@ -313,8 +330,7 @@ def test_what_stays_refused_is_refused_in_one_line(tmp_path):
 def test_emulated_drive_passes_check_and_a_weak_coil_fails(tmp_path):
     """The virtual bench device runs the design's actuation (the boost, the threshold, the
     armature into the hold): its capture passes ``check``; a coil 40 % over its
-    resistance fails it (plumbing: the device shares the design's physics). Firmware in
-    the loop refuses only an eddy term with it (one line at ``emulate --firmware``)."""
+    resistance fails it (plumbing: the device shares the design's physics)."""
     import sys
 
     sys.path.insert(0, str(Path(__file__).parent))
@@ -326,14 +342,6 @@ def test_emulated_drive_passes_check_and_a_weak_coil_fails(tmp_path):
     from coildrive.design import design
 
     d = design(load_drive(EXAMPLE))
-    from coildrive.bench.firmware_device import FirmwareDevice
-    FirmwareDevice.check_design(d)
-    eddy = tmp_path / "eddy.toml"
-    eddy.write_text(EXAMPLE.read_text().replace('board = "lab-m32-zener"',
-                                                f'board = "{EXAMPLES.parent / "boards" / "lab-m32-zener.toml"}"')
-                    .replace("inductance_tolerance = 0.10", 'inductance_tolerance = 0.10\neddy_resistance = "200 ohm"'))
-    with pytest.raises(ValueError, match="eddy-current term on a boosted peak"):   # firmware in the loop: not yet
-        FirmwareDevice.check_design(design(load_drive(eddy)))
     dev = VirtualDevice(d.drive, DeviceOptions(noise_codes=1.0, seed=3, hold_time=0.004), design=d)
     assert dev.peak_time < d.pull_in.peak_time_s, "ends at the threshold, before the time-out"
     msgs, _ = run_device(dev, 0.05 + 2 * dev.period, step=0.05)

@@ -13,7 +13,12 @@ the peak's start), on from the main supply after it, off through the hold's free
 path (or the release's once the driver opens everything) -- and returns the current over
 it. Once the armature rests on the seat the device goes on with the seated coil's
 closed form, as it does after an unboosted pull-in; once it rests open with no current
-after the driver switched off, the flight is over too.
+after the driver switched off, the flight is over too. With an eddy-current term
+(``coil.eddy_resistance``) the flight carries the branch behind the loop's Thevenin pair
+(the design's model): :meth:`BoostFlight.run` gives the terminal current the sense resistor
+carries (what the driver's conversions read, the threshold's among them) beside the
+magnetising current, from which the seated coil's closed form goes on
+(:attr:`BoostFlight.coil_current`).
 
 On a drooping main supply (``supply.source_resistance``) the flight carries the main bus
 as the design and ``simulate`` do (:func:`coildrive.model.armature_boost.boosted_pull_in`
@@ -56,17 +61,21 @@ class BoostFlight:
     """
 
     def __init__(self, drive, hold, release, l_scale: float, setting: tuple[float, float] | None = None):
-        s = drive.supply
+        s, r_e = drive.supply, drive.coil.eddy_resistance
         self.drive, self._setting = drive, setting
-        self.p_hold = params_from_loop(drive.armature, hold, l_scale)
-        self.p_release = params_from_loop(drive.armature, release, l_scale)
+        self.p_hold = params_from_loop(drive.armature, hold, l_scale, r_e)
+        self.p_release = params_from_loop(drive.armature, release, l_scale, r_e)
         #: on a drooping main supply: the hold's points on the bus (the converter's draw
         #: taken out at the hand-over: ``p_main``), else ``None``
-        self._p_bus = (params_from_loop(drive.armature, hold, l_scale, bus=(s.source_resistance, s.capacitance))
+        self._p_bus = (params_from_loop(drive.armature, hold, l_scale, r_e, bus=(s.source_resistance, s.capacitance))
                        if s.droops else None)
         self.p_main = None
         self.bus = float(hold.v_on)          # the main bus, V (the source's while not drawn)
         self.seat_bus: float | None = None   # V where the armature came to rest on the seat
+        self.seat_time: float | None = None  # s (device time) where it came to rest on the seat
+        #: ``(s, A)``: the hand-over (the first stretch off the boost) and the terminal current
+        #: there, as the boost left it
+        self.hand_over: tuple[float, float] | None = None
         #: the flight's stretches as flown since the peak's start: ``(from s, to s, what)``,
         #: what ``"boost"``, ``"on"`` (the main supply) or the off path (``"hold"``/``"release"``)
         self.flown: list[tuple[float, float, str]] = []
@@ -75,7 +84,10 @@ class BoostFlight:
         self.u = float(s.boost)              # the boost capacitor, V
         self.state = "open"
         self.live = False
-        self.current = 0.0                   # A at the end of the last stretch
+        self.current = 0.0                   # A at the end of the last stretch (the terminal current)
+        #: A there, the coil's: with an eddy term the magnetising current (the seated coil's
+        #: closed form goes on from it), else :attr:`current`
+        self.coil_current = 0.0
 
     @property
     def active(self) -> bool:
@@ -85,8 +97,9 @@ class BoostFlight:
     def start(self, u: float) -> None:
         """The peak's start from rest, the boost capacitor at ``u`` V."""
         self.y = np.array([0.0, float(self.p_hold.stroke[0]), 0.0, 0.0, 0.0])
-        self.u, self.state, self.live, self.current = float(u), "open", False, 0.0
+        self.u, self.state, self.live, self.current, self.coil_current = float(u), "open", False, 0.0, 0.0
         self.bus, self.p_main, self.seat_bus, self.flown = float(self.p_hold.v_on[0]), None, None, []
+        self.seat_time = self.hand_over = None
 
     def _main(self):
         """The hold's points off the boost: on a drooping main supply the bus's, the
@@ -108,32 +121,40 @@ class BoostFlight:
         self.y = np.array([tr.flux[-1], tr.position[-1], tr.velocity[-1], tr.charge[-1], tr.square[-1]])
         if droops:
             self.u = float(tr.bus[-1])
+        seats = [t for t, name in tr.log if name == "seat"]
+        if seats and tr.state == "seated":
+            self.seat_time = float(seats[-1])
         if on_bus:
             self.bus = float(tr.bus[-1])
-            seats = [t for t, name in tr.log if name == "seat"]
             if seats and tr.state == "seated":   # (a piece ends at the seat: a sample there)
                 self.seat_bus = float(np.interp(seats[-1], tr.time, tr.bus))
         self.state = tr.state
-        self.current = float(tr.current[-1])
+        coil = tr.current if tr.magnetising_current is None else tr.magnetising_current
+        self.current, self.coil_current = float(tr.current[-1]), float(coil[-1])
         self.live = self.current > 0.0
-        return tr.time, tr.current
+        return tr.time, tr.current, coil
 
     def run(self, t0: float, t1: float, on_end: float, boost: bool, path: str, fast_end: float | None = None):
         """Fly from ``t0`` to ``t1`` s: the switch on until ``on_end`` s (from the boost
         capacitor while ``boost``, else from the main supply), then off through ``path``
         (``"hold"`` or ``"release"``); ``fast_end``: a full bridge's mixed-decay hold, its
         off-time through the release's path (all four open) until then, s, before ``path``.
-        Returns ``current(x)``: A at device times in the stretch."""
+        Returns ``(sensed(x), coil(x))``: the terminal current (what the sense resistor
+        carries) and the coil's (with an eddy term the magnetising current; else the same),
+        A at device times in the stretch."""
         if t1 <= t0:
-            i = self.current
-            return lambda x: np.full(np.shape(x), i)
-        times, amps = [np.array([t0])], [np.array([self.current])]
+            i, m = self.current, self.coil_current
+            return (lambda x: np.full(np.shape(x), i)), (lambda x: np.full(np.shape(x), m))
+        times, amps, coils = [np.array([t0])], [np.array([self.current])], [np.array([self.coil_current])]
+        if not boost and self.hand_over is None:
+            self.hand_over = (t0, self.current)
         cut = min(max(on_end, t0), t1)
         if boost and cut > t0:
             c_b, r_b = self._boost
-            t, i = self._fly(boost_params(self.p_hold, self.u, c_b, r_b), [(cut, True)], t0, True)
+            t, i, m = self._fly(boost_params(self.p_hold, self.u, c_b, r_b), [(cut, True)], t0, True)
             times.append(t)
             amps.append(i)
+            coils.append(m)
         schedule = [] if boost else [(cut, True)] if cut > t0 else []
         off_from = cut
         if fast_end is not None and path == "hold" and min(fast_end, t1) > cut:
@@ -145,11 +166,12 @@ class BoostFlight:
         self.flown += ([(t0, cut, "boost")] if boost and cut > t0 else []) + [
             (a, seg[0], "on" if seg[1] else seg[3]) for a, seg in zip(edges, schedule)]
         if schedule:
-            t, i = self._fly(self._main(), schedule, cut if boost else t0, False, self.p_release)
+            t, i, m = self._fly(self._main(), schedule, cut if boost else t0, False, self.p_release)
             times.append(t)
             amps.append(i)
-        t, i = np.concatenate(times), np.concatenate(amps)
-        return lambda x: np.interp(np.asarray(x, float), t, i)
+            coils.append(m)
+        t, i, m = np.concatenate(times), np.concatenate(amps), np.concatenate(coils)
+        return (lambda x: np.interp(np.asarray(x, float), t, i)), (lambda x: np.interp(np.asarray(x, float), t, m))
 
     def settle(self, enabled: bool) -> bool:
         """End the flight where it is over: the armature resting on the seat, or (the driver

@@ -35,8 +35,9 @@ to it), then replaces everything the hold decides with the current-mode model of
 * with an ``[armature]`` the pull-in is the moving armature's run, the hold regulated on
   the seated coil, the release from the band's top until the armature is back open; with
   an eddy-current term too (the run's eddy branch, the thresholds on the seated coil's
-  sensed current, the hold's force from the magnetising current's RMS), except after a
-  boosted peak (refused in one line).
+  sensed current, the hold's force from the magnetising current's RMS); after a boosted
+  peak, with or without one, only where the armature seats within the peak at every
+  corner (else refused in one line naming ``hold.mode``).
 
 In the design JSON ``hold.frequency_hz`` is the switching frequency at the nominal
 point, ``hold.duty`` the largest switch-on fraction over the corners (1 where the
@@ -442,13 +443,10 @@ def _split_result(drive: Drive, fallback, cm: CurrentModeSteadyState):
 
 # --------------------------------------------------------------------------- design
 def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
-    """The Design of a current-mode drive (see the module docstring). With an
-    ``[armature]`` and an eddy-current term a boosted peak is refused in one line (not
-    modelled yet)."""
-    if drive.armature is not None and drive.coil.eddy_resistance and drive.supply.boosted:
-        raise InputError(drive.source, "coil.eddy_resistance", "a current-mode hold with an [armature] "
-                         "and an eddy-current term after a boosted peak (supply.boost) is not modelled "
-                         "yet; use mode = \"voltage\", or leave out the eddy term or the boost")
+    """The Design of a current-mode drive (see the module docstring). After a boosted peak
+    with an ``[armature]`` (an eddy-current term too) only where the armature seats within
+    the peak at every corner (:func:`~coildrive.design.boost_armature.require_seated_in_peak`,
+    else one line naming ``hold.mode``)."""
     if samples > 0:
         raise InputError("--samples", "", "the Monte Carlo covers the voltage-mode hold only "
                          "(this drive has hold.mode = \"current\")")
