@@ -1489,7 +1489,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     the hand-over: :func:`coildrive.design.supply.handover_bus`, a linear coil, a curve or
     an eddy term; on a full bridge every turn-off's fast decay returns into it, the boost
     converter idle or drawing: :mod:`coildrive.design.bridge_bus`, a linear coil or a curve,
-    or an eddy term on a supply that sinks; with a moving armature, a linear coil on
+    an eddy term on a linear coil (on a supply that cannot sink
+    :func:`coildrive.model.bus_decay.eddy_decay_drawn_no_sink`), or on a curve on a supply
+    that sinks; with a moving armature, a linear coil on
     one switch without a clamp, an eddy term too, the hold's flight on it; not on a full
     bridge), a PWM
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
@@ -1522,11 +1524,11 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "(e.g. 0.85)")
     why = None
     if (supply.droops and switch.topology == "full_bridge" and not supply.sink
-            and coil.eddy_resistance):
+            and coil.eddy_resistance and coil.flux_current):
         key, why = "supply.sink", ("a drooping main supply that cannot sink on a full bridge with an "
-                                   "eddy-current term (the release into the drooping bus with the "
-                                   "converter drawing and the feed blocking is a linear coil's or a "
-                                   "curve's without one)")
+                                   "eddy-current term on a flux-linkage curve (the release into the "
+                                   "drooping bus with the converter drawing and the feed blocking is a "
+                                   "linear coil's, a curve's or an eddy term's on a linear coil)")
     elif hold.mode == "latch" and _boosted_latch_refusal(coil, switch, supply, armature, latch):
         key, why = _boosted_latch_refusal(coil, switch, supply, armature, latch)
     elif hold.mode == "latch" and freewheel.type == "clamp":
@@ -1558,8 +1560,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "high-side switch or a "
                          "full bridge, a "
                          "diode/zener/resistor freewheel (split decay too) or a clamp, a stiff "
-                         "main supply (or a drooping one; on a full bridge a linear coil or a curve, or an "
-                         "eddy term on a supply that sinks; with [armature] a linear coil on one switch, an "
+                         "main supply (or a drooping one; on a full bridge a linear coil or a curve, an eddy "
+                         "term on a linear coil, or on a curve on a supply that sinks; with [armature] a "
+                         "linear coil on one switch, an "
                          "eddy term too, no clamp), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
                          "with [armature]: no restitution with an eddy term; a "

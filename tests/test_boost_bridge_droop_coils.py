@@ -14,8 +14,9 @@ References:
   below, at and above ``V_s - R_s I_c``;
 * the design end to end: the release takes the drawing converter (without it the
   release is shorter), a curve on a supply that cannot sink too (its drawing converter's
-  decay bounded: tests/test_boost_bridge_no_sink_curve.py), an eddy term on one that cannot
-  stays refused in one line.
+  decay bounded: tests/test_boost_bridge_no_sink_curve.py; an eddy term on a linear coil
+  there: tests/test_boost_bridge_no_sink_eddy.py), an eddy term on a curve on one that
+  cannot stays refused in one line.
 """
 
 from __future__ import annotations
@@ -92,7 +93,11 @@ def test_design_end_to_end(tmp_path, kind, sink, monkeypatch):
 
 
 def test_a_supply_that_cannot_sink_still_refused(tmp_path):
-    path = _coil(_drooping(tmp_path, sink=False), "eddy")
+    # an eddy term on a curve (on a linear coil it is designed: tests/test_boost_bridge_no_sink_eddy.py)
+    from test_boost_droop import _curve_eddy
+
+    path = _drooping(tmp_path, sink=False)
+    path.write_text(path.read_text().replace(*_curve_eddy(), 1))
     out = run_cli("design", str(path))
     assert out.returncode == 2 and "supply.sink" in out.stderr and "cannot sink" in out.stderr, out.stderr
     assert len(out.stderr.strip().splitlines()) == 1

@@ -14,7 +14,7 @@ falls). References:
   from buses where the feed blocks and re-feeds and where the drain keeps it feeding;
 * the design end to end (tests/test_boost_bridge_droop_coils.py ``curve-no-sink``): the
   release takes the drawing converter's bound (without it the release is shorter); an
-  eddy term stays refused in one line there; here, a bus pulled to the bridge's diodes is
+  eddy term on a curve stays refused in one line there; here, a bus pulled to the bridge's diodes is
   refused in one line, and (plumbing) the emulated capture passes check.
 """
 

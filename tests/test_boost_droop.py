@@ -140,17 +140,27 @@ def test_design_takes_the_hand_over(tmp_path):
         assert s["lowest_bus_v"] <= 9.0 - R_S * (top + i_conv) + 1e-9
 
 
-@pytest.mark.parametrize("name,change,board,word", [
+def _curve_eddy():
+    """The fuel valve's 6 mH as tests/test_boost_flux.py's saturating curve with a 200 ohm
+    eddy term (the edit for :func:`_droop`)."""
+    from test_boost_flux import CURVE_I, CURVE_PSI
+
+    curve = (f"flux_current = {[float(x) for x in CURVE_I]}\n"
+             f"flux_linkage = {[f'{1e3 * x:.6g} mWb' for x in CURVE_PSI]}\n").replace("'", '"')
+    return ('inductance = "6 mH"\n', curve + 'eddy_resistance = "200 ohm"\n')
+
+
+@pytest.mark.parametrize("name,board,word", [
     # (an eddy term or a curve on one switch: tests/test_boost_droop_coils.py; a linear coil
     # on a full bridge: tests/test_boost_bridge_droop.py; a curve or an eddy term on a full
-    # bridge on a supply that sinks: tests/test_boost_bridge_droop_coils.py)
-    ("bridge-eddy", ('inductance = "6 mH"', 'inductance = "6 mH"\neddy_resistance = "200 ohm"'), "bridge-m32-fast",
-     "full bridge"),
+    # bridge on a supply that sinks: tests/test_boost_bridge_droop_coils.py; an eddy term on
+    # a linear coil on one that cannot: tests/test_boost_bridge_no_sink_eddy.py)
+    ("bridge-curve-eddy", "bridge-m32-fast", "flux-linkage curve"),
 ])
-def test_still_refused(tmp_path, name, change, board, word):
+def test_still_refused(tmp_path, name, board, word):
     """A drooping main supply that cannot sink with a boost on a full bridge with an eddy
-    term is refused in one line naming ``supply.sink``."""
-    path = _droop(tmp_path, name, change)
+    term on a flux-linkage curve is refused in one line naming ``supply.sink``."""
+    path = _droop(tmp_path, name, _curve_eddy())
     if board:
         path.write_text(path.read_text().replace("lab-m32-zener", board).replace("[supply]\n", "[supply]\nsink = false\n", 1))
     out = run_cli("design", str(path))

@@ -7,7 +7,8 @@ flux-linkage curve's, with or without an eddy term, :mod:`coildrive.model.flux_b
 stepped). After a boosted peak the main bus sits at the source through the peak and feeds
 the hold and the boost converter from the hand-over: the release takes the converter idle
 and drawing its most (:func:`coildrive.model.bus_decay.decay_drawn`; a curve's on a supply
-that cannot sink bounded, :func:`coildrive.model.flux_bus_decay.drawn_no_sink_bound`)."""
+that cannot sink bounded, :func:`coildrive.model.flux_bus_decay.drawn_no_sink_bound`; an
+eddy term's there :func:`coildrive.model.bus_decay.eddy_decay_drawn_no_sink`)."""
 
 from __future__ import annotations
 
@@ -159,7 +160,10 @@ def decays(drive: Drive, res, i0, peak_time, peak_end) -> list[bus_decay.FastDec
     dv/dt = i + (V_s - v)/R_s - I_c = i + (V_s - R_s I_c - v)/R_s``, exact); a curve's (no
     eddy term) on a supply that cannot sink, the feed blocking at ``V_s`` and the drain on,
     bounded: :func:`coildrive.model.flux_bus_decay.drawn_no_sink_bound` (the release against
-    the fixed lowest bus, the highest bus by the energy argument)."""
+    the fixed lowest bus, the highest bus by the energy argument); an eddy term's (its
+    linear magnetising branch) there exact:
+    :func:`coildrive.model.bus_decay.eddy_decay_drawn_no_sink` (a bus fed again that would
+    climb back to the source is refused in one line, ``supply.sink``)."""
     s = drive.supply
     lp = release_loop(res)
     lo, hi = bus_range(drive, res, peak_time, peak_end)
@@ -169,10 +173,13 @@ def decays(drive: Drive, res, i0, peak_time, peak_end) -> list[bus_decay.FastDec
     plain = not isinstance(coil, (EddyCoil, FluxCoil))
     # a curve (no eddy term) on a supply that cannot sink: the drawing converter's bound below
     bound = i_conv is not None and isinstance(coil, FluxCoil) and not s.sink
+    # an eddy term (a linear branch) on a supply that cannot sink: its drawing decay below
+    eddy_drawn = i_conv is not None and isinstance(coil, EddyCoil) and not s.sink
     # the sources the decays run against: the idle converter's, and the drawing one's (a
     # curve or an eddy term on a supply that sinks; a plain linear coil's drawing
     # converter is decay_drawn's below, the feed's blocking included)
-    sources = [lp.v_on] + ([] if i_conv is None or plain or bound else [lp.v_on - s.source_resistance * i_conv])
+    sources = [lp.v_on] + ([] if i_conv is None or plain or bound or eddy_drawn
+                           else [lp.v_on - s.source_resistance * i_conv])
     runs = [run for v_s in sources
             for run in flux_bus_decay.fast_decays(coil, i0, starts, drive.release.current, v_s, s.source_resistance,
                                                   s.capacitance, lp.r_off, lp.diode(drive), s.sink)]
@@ -181,6 +188,18 @@ def decays(drive: Drive, res, i0, peak_time, peak_end) -> list[bus_decay.FastDec
         # state is affine in its current too, so both ends from every starting bus
         runs += [bus_decay.decay_drawn(i0, v0, drive.release.current, lp.v_on, i_conv, s.source_resistance,
                                        s.capacitance, lp.r_off, coil, lp.diode(drive), s.sink) for v0 in starts]
+    if eddy_drawn:
+        # the feed blocking at V_s with the converter's drain: fed against V_s - R_s I_c,
+        # blocked, fed again, the diodes blocking at the terminal current's zero (exact)
+        try:
+            runs += [bus_decay.eddy_decay_drawn_no_sink(i0, v0, drive.release.current, lp.v_on, i_conv,
+                                                        s.source_resistance, s.capacitance, lp.r_off,
+                                                        coil.magnetising, lp.diode(drive), coil.resistance)
+                     for v0 in starts]
+        except bus_decay.Unbounded as err:
+            raise InputError(drive.source, "supply.sink", (
+                f"false with an eddy-current term and the boost converter drawing: {err} after a turn-off "
+                "(not modelled), expected a supply that sinks, a larger capacitance or a lower boost_power")) from None
     if bound:
         # the feed blocking at V_s with the converter's drain: the slowest release (against
         # the fixed lowest bus) and the highest bus (the energy argument), bounded

@@ -459,6 +459,130 @@ def decay_drawn(i0, v0, i_drop, v_s, i_c, r_s, c, r, l, v_d, sink: bool = True) 
                      np.where(bus_top > v_fed, when, np.inf), v_end, charge)
 
 
+class Unbounded(ValueError):
+    """A decay :func:`eddy_decay_drawn_no_sink` does not follow: the bus, fed again after
+    the feed's block, would rise back up to the source."""
+
+
+def eddy_decay_drawn_no_sink(i0, v0, i_drop, v_s, i_c, r_s, c, r, l, v_d, r_e) -> FastDecay:
+    """:func:`eddy_decay_no_sink` with a constant current ``i_c`` A drawn off the bus
+    throughout (a boost converter fed from the main bus, as :func:`decay_drawn`), an eddy
+    resistance ``r_e`` ohm across the magnetising branch ``l`` H (``i0``, ``i_drop``
+    magnetising currents); ``v0`` at or below ``v_s`` V. In ``u = -(v + 2 V_d)`` (as
+    :func:`eddy_decay`), three stretches, each closed form:
+
+    * **fed** (the feed conducts, ``v < v_s``): ``C dv/dt = i_t + (V_s - v)/R_s - i_c = i_t
+      + (V_s' - v)/R_s``, :func:`eddy_decay`'s circuit with the source ``V_s' = v_s - R_s
+      i_c`` (Thevenin, exact), ``i_t = k (i_m + u/R_e)`` the terminal current, ``k = R_e/(R
+      + R_e)``. Its bus is two exponentials (or a damped sinusoid) about the steady state, so
+      it reaches ``v_s`` first on its rise to its highest over the stretch (from the start,
+      or from its first minimum when it starts falling: :func:`coildrive.model.linear2.first_zero`
+      of ``du/dt``), a bisection there; where it never does, the stretch runs to the
+      terminal current's zero and the decay is :func:`eddy_decay` against ``V_s'``.
+    * **blocked** (from the bus at ``v_s`` with ``i_t > i_c``; a start at ``v_s`` with
+      ``i_t <= i_c`` falls at once and stays fed): ``L di_m/dt = k (u - R i_m)``, ``C du/dt
+      = i_c - k (i_m + u/R_e)``: the capacitor alone's matrix (``R_s -> inf``) about the
+      steady state ``(i_m, u) = (i_c, R i_c)`` (the constant input moves only that), so
+      :func:`coildrive.model.supply.state_from` answers on that circuit. The bus rises while
+      ``i_t > i_c``, to its top where ``i_t = i_c`` (the first zero of ``du/dt``), then falls;
+      the stretch ends at the earlier of the terminal current's zero (the diodes block: a
+      bisection up to its first minimum, which later minima lie above) and the bus back at
+      ``v_s`` after the top (a bisection up to the next turn, ``pi/omega`` later, or a
+      grown bracket). Its charge is exact, ``int i_t dt = i_c t + C (v - v_s)``.
+    * **fed again** from the bus at ``v_s``, falling (``i_t < i_c``): :func:`eddy_decay`'s
+      circuit against ``V_s'`` to the terminal current's zero. Where that bus would rise
+      back up to ``v_s`` (the terminal current climbing past ``i_c`` again: the eddy
+      branch's ``k u / R_e`` rising faster than ``i_m`` falls, which takes a drain of tens
+      of amperes on a valve's coil) :class:`Unbounded` is raised rather than a wrong figure
+      returned.
+
+    The magnetising current falls throughout (the bus stays above ``-2 V_d``): the drop-out
+    is a bisection in the stretch that reaches it, or after the block the flux's tail
+    through ``R_e`` alone, ``(L/R_e) ln(i_z/i_drop)``; the eddy loss is each stretch's
+    quadrature (:func:`coildrive.model.supply.eddy_loss_from`) plus the field's whole store
+    at the block. ``bus_max`` is the highest bus or ``V_s'``, which the bus relaxes to."""
+    i0, v0, i_drop, v_s, i_c, r_s, c, r, l, v_d, r_e = np.broadcast_arrays(
+        *(np.asarray(x, float) for x in (i0, v0, i_drop, v_s, i_c, r_s, c, r, l, v_d, r_e)))
+    v_fed = v_s - r_s * i_c
+    b_fed = supply.bus(-(v_fed + 2.0 * v_d), r_s, c, r, l, r_e)
+    u0 = -(v0 + 2.0 * v_d)
+    fed, at = _eddy_run(b_fed, i0, v0, i_drop, v_fed, v_d, r_e)
+
+    def bus(state):
+        return -state[1] - 2.0 * v_d
+
+    # the fed stretch: its first reach of v_s, on the rise to its highest
+    start_blocked = (v0 >= v_s) & (supply.terminal(i0, u0, b_fed) > i_c)
+    ad = linear2.times(b_fed.matrix, (i0 - b_fed.i_ss, u0 - b_fed.v_ss))
+    aad = linear2.times(b_fed.matrix, ad)
+    lo = np.where(ad[1] > 0.0, linear2.first_zero(ad[1], aad[1], b_fed.l1, b_fed.l2), 0.0)   # (du/dt > 0: falling)
+    reach = (fed.bus_top > v_s) & (v0 < v_s)
+    lo = np.where(reach & np.isfinite(lo), lo, 0.0)
+    t_a = lo + _fall(lambda t: v_s - bus(at(lo + t)), v_s - bus(at(lo)), 0.0,
+                     np.where(reach, fed.bus_max_time - lo, 0.0))
+    blocked = reach | start_blocked
+    if np.any(~blocked & (v0 >= v_s) & (fed.bus_top > v_s * (1.0 + 1e-9))):
+        raise Unbounded("the bus, falling from the source, would rise back up to it")
+    t_a = np.where(reach, t_a, 0.0)
+    i_a = np.where(reach, at(t_a)[0], np.where(start_blocked, i0, i_c + 1.0))
+    u_a = -(v_s + 2.0 * v_d)
+    q_a = np.where(reach, supply.integrals_from(t_a, b_fed, i0, u0)[0], 0.0)
+    loss_a = np.where(reach, supply.eddy_loss_from(t_a, b_fed, i0, u0), 0.0)
+    # blocked: the capacitor alone's circuit about (i_c, R i_c)
+    with np.errstate(invalid="ignore"):       # (its v_ss: 0 - inf x 0)
+        b_b = dataclasses.replace(supply.bus(np.zeros_like(v_s), np.full_like(v_s, np.inf), c, r, l, r_e),
+                                  i_ss=i_c, v_ss=r * i_c)
+
+    def at_b(t):
+        return supply.state_from(t, b_b, i_a, u_a)
+
+    def flow_b(t):
+        return supply.terminal(*at_b(t), b_b)
+    k = r_e / (r + r_e)
+    zb = linear2.times(b_b.matrix, (i_a - b_b.i_ss, u_a - b_b.v_ss))
+    zzb = linear2.times(b_b.matrix, zb)
+    t_top = linear2.first_zero(zb[1], zzb[1], b_b.l1, b_b.l2)                 # i_t = i_c: the bus's top
+    t_imin = linear2.first_zero(k * (zb[0] + zb[1] / r_e), k * (zzb[0] + zzb[1] / r_e), b_b.l1, b_b.l2)
+    t_imin = np.where(np.isfinite(t_imin), t_imin, _grow(flow_b, np.full_like(v_s, np.inf), l / (k * r)))
+    t_iz = _fall(flow_b, flow_b(np.zeros_like(v_s)), 0.0, t_imin)
+    t_iz = np.where(flow_b(t_imin) <= 0.0, t_iz, np.inf)
+    t_top = np.where(np.isfinite(t_top), t_top, 0.0)
+    w = np.abs(b_b.l1.imag)
+    with np.errstate(divide="ignore"):
+        t_vmin = np.where(w > 0, np.pi / np.where(w > 0, w, 1.0), np.inf)   # after the top
+    span = _grow(lambda t: bus(at_b(t_top + t)) - v_s, t_vmin, l / (k * r))
+    t_back = t_top + _fall(lambda t: bus(at_b(t_top + t)), np.full_like(v_s, np.inf), v_s, span)
+    by_zero = t_iz <= t_back
+    t_b = np.where(by_zero, t_iz, t_back)
+    i_b, u_b = at_b(t_b)
+    v_b = np.where(by_zero, -u_b - 2.0 * v_d, v_s)
+    q_b = i_c * t_b + c * (v_b - v_s)
+    loss_b = supply.eddy_loss_from(t_b, b_b, i_a, u_a) + np.where(by_zero, 0.5 * l * i_b * i_b, 0.0)
+    v_top = bus(at_b(np.minimum(t_top, t_b)))
+    # fed again from the bus back at v_s
+    back = blocked & ~by_zero
+    again, _ = _eddy_run(b_fed, np.where(back, i_b, 0.0), np.where(back, v_s, v_fed), i_drop, v_fed, v_d, r_e)
+    if np.any(back & (again.bus_top > v_s * (1.0 + 1e-9))):
+        raise Unbounded("the bus, fed again after the feed's block, would rise back up to the source")
+    drop_in_a = ~blocked | (i_a <= i_drop)
+    drop_in_b = (i_b <= i_drop) & ~drop_in_a
+    t_drop_b = _fall(lambda t: at_b(t)[0], i_a, i_drop, np.where(drop_in_b, t_b, 0.0))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        tail = l / r_e * np.log(np.where(by_zero & (i_drop < i_b), i_b / i_drop, 1.0))
+    after_b = np.where(by_zero, t_b + tail, t_b + again.drop_time)
+    t_drop = np.where(~blocked, fed.drop_time,
+                      np.where(i_a <= i_drop, _fall(lambda t: at(t)[0], i0, i_drop, t_a),
+                               t_a + np.where(drop_in_b, t_drop_b, after_b)))
+    t_zero = np.where(blocked, t_a + t_b + np.where(back, again.zero_time, 0.0), fed.zero_time)
+    bus_top = np.where(blocked, v_top, fed.bus_top)
+    when = np.where(blocked, t_a + np.minimum(t_top, t_b), fed.bus_max_time)
+    v_end = np.where(blocked, np.where(back, again.bus_at_zero, v_b), fed.bus_at_zero)
+    charge = np.where(blocked, q_a + q_b + np.where(back, again.charge, 0.0), fed.charge)
+    loss = np.where(blocked, loss_a + loss_b + np.where(back, again.eddy_energy, 0.0), fed.eddy_energy)
+    return FastDecay(t_drop, t_zero, bus_top, np.maximum(bus_top, v_fed), np.where(bus_top > v_fed, when, np.inf),
+                     v_end, charge, loss)
+
+
 def mixed_hold_rise(r_s, c, i_top, t_fast, period) -> np.ndarray:
     """A bound (V) on how far a full bridge's mixed-decay hold lifts a bus that sinks above
     its source: with ``u = v - V_s``, ``C du/dt = -u/R_s + j``, where ``j``, the coil's
