@@ -15,7 +15,8 @@ References:
   zero) as the terminal event, then the flux's tail through ``R_e`` alone: the zero and
   drop-out times, the highest bus, the bus at the block, the charge and the eddy loss to
   1e-5, over starts where the feed blocks and re-feeds, blocks until the zero, blocks from
-  the start, and never blocks;
+  the start, and never blocks; and twenty seeded random circuits (the zero time, the
+  highest bus and the charge);
 * hand-worked: ``I_c = 0`` is ``eddy_decay_no_sink`` (the same circuit), and every case's
   first law closes (the field's and the bus's energy against the loop's, the eddy loss and
   the drain's, from the reference's integrals);
@@ -49,8 +50,9 @@ CASES = [(0.9, 22.0, 1.5, 10e-6, 0.1, 300.0), (0.9, 23.8, 1.0, 10e-6, 0.4, 150.0
          (0.8, 23.5, 0.5, 4.7e-3, 1.0, 200.0), (0.7, 23.9, 0.3, 22e-6, 0.5, 300.0)]
 
 
-def reference(i0, v0, r_s, c, i_c, r_e):
-    """scipy's solve_ivp of the circuit (module docstring): ``(zero s, drop-out s, highest
+def reference(i0, v0, r_s, c, i_c, r_e, l_m=L_M):
+    """scipy's solve_ivp of the circuit (module docstring), the magnetising branch ``l_m``
+    H: ``(zero s, drop-out s, highest
     bus V, bus at zero V, charge C, eddy loss J)``, the phases it went through, and ``(the
     energy into the bus J, int i_t^2 dt A^2 s, the magnetising current at the block A)``."""
     from scipy.integrate import solve_ivp
@@ -61,7 +63,7 @@ def reference(i0, v0, r_s, c, i_c, r_e):
     def rhs(fed):
         def f(t, x):   # (magnetising A, bus V, charge C, eddy loss J, into the bus J, int i_t^2)
             i = terminal(x)
-            return [r_e * (i - x[0]) / L_M, (i - i_c + ((V_S - x[1]) / r_s if fed else 0.0)) / c, i,
+            return [r_e * (i - x[0]) / l_m, (i - i_c + ((V_S - x[1]) / r_s if fed else 0.0)) / c, i,
                     r_e * (i - x[0]) ** 2, x[1] * i, i * i]
         return f
 
@@ -95,8 +97,8 @@ def reference(i0, v0, r_s, c, i_c, r_e):
         assert len(phases) < 6
     i_z = x[0]
     if t_drop is None:   # the flux's tail through R_e alone: i_m = i_z e^{-R_e t / L}
-        t_drop = t_zero + L_M / r_e * math.log(i_z / I_DROP)
-    loss = x[3] + 0.5 * L_M * i_z**2   # the tail takes the field's whole store
+        t_drop = t_zero + l_m / r_e * math.log(i_z / I_DROP)
+    loss = x[3] + 0.5 * l_m * i_z**2   # the tail takes the field's whole store
     return (t_zero, t_drop, max(max(tops), V_S - r_s * i_c), x[1], x[2], loss), phases, (x[4], x[5], i_z)
 
 
@@ -176,3 +178,24 @@ def test_emulated_capture_passes_check(tmp_path):
     from test_boost_high_side import emulated_check_passes
 
     emulated_check_passes(tmp_path, _valve(tmp_path, "2 mohm"))
+
+
+def test_drawn_decays_over_random_circuits_against_solve_ivp():
+    """Twenty seeded random circuits (coil 1 mH to 0.3 H, R_e 40 ohm to 1 kohm where the
+    turn-off leaves the terminal current positive, R_s 0.1 to 10 ohm, C 0.1 uF to 100 uF,
+    drains 0.05 to 2 A, starts 20 to 24 V): the zero time, the highest bus and the charge
+    against scipy's solve_ivp (:func:`reference`) within 1e-5; none is refused."""
+    rng = np.random.default_rng(7)
+    kept = 0
+    while kept < 20:
+        l_m = 10 ** rng.uniform(-3.0, -0.5)
+        i0, v0 = rng.uniform(0.2, 2.0), rng.uniform(20.0, 24.0)
+        r_s, c = 10 ** rng.uniform(-1.0, 1.0), 10 ** rng.uniform(-7.0, -4.0)
+        i_c, r_e = rng.uniform(0.05, 2.0), 10 ** rng.uniform(1.6, 3.0)
+        if r_e * i0 <= v0 + 2.0 * V_D:   # (the diodes never conduct: the flux dies through R_e)
+            continue
+        kept += 1
+        ref, phases, _ = reference(i0, v0, r_s, c, i_c, r_e, l_m)
+        d = bus_decay.eddy_decay_drawn_no_sink(i0, v0, I_DROP, V_S, i_c, r_s, c, R_LOOP, l_m, V_D, r_e)
+        got = [float(x) for x in (d.zero_time, d.bus_max, d.charge)]
+        assert got == pytest.approx([ref[0], ref[2], ref[4]], rel=1e-5), (i0, v0, r_s, c, i_c, r_e, l_m, phases)
