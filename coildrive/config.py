@@ -1527,8 +1527,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     :func:`coildrive.design.boost_armature.loop_pull_in`) or a current-mode hold -- that one
     (and the closed loop with an eddy term) where the design finds the armature seated
     within the peak at every corner
-    (:func:`coildrive.design.boost_armature.require_seated_in_peak`), a bouncing seat (``restitution``) without an
-    eddy term (the conversion after the threshold flown: :func:`coildrive.model.armature_boost.window_flight`),
+    (:func:`coildrive.design.boost_armature.require_seated_in_peak`), a bouncing seat (``restitution``;
+    an eddy term too: the conversion after the threshold flown, :func:`coildrive.model.armature_boost.window_flight`),
     an on/off cycle (the peak's heat is the run's copper integral, with an eddy term plus its core loss
     bounded by the first law: :func:`coildrive.design.boost_armature.peak_heat`).
     A latching coil's set and reset pulses from the boost, each ending at its own threshold
@@ -1564,10 +1564,6 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = "freewheel.type", ("a drooping main supply, a moving armature and a clamp across the "
                                       "switch together (the clamp's off-times draw from the bus while the "
                                       "armature may be in flight)")
-    elif armature is not None and armature.restitution > 0 and coil.eddy_resistance:
-        key, why = "armature.restitution", ("a moving armature that bounces off the seat and an eddy-current "
-                                            "term together (the end current's window is flown for a plain coil "
-                                            "only)")
     elif armature is not None and hold.fast_fraction > 0:
         key, why = "hold.fast_fraction", "a moving armature and a full bridge's mixed-decay hold together"
     elif pull_in.compensate:
@@ -1587,7 +1583,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "eddy term on a supply that sinks; with [armature] a linear coil on one switch, an "
                          "eddy term too, no clamp), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
-                         "with [armature]: no mixed decay, no restitution with an eddy term; a "
+                         "with [armature]: no mixed decay; a "
                          "latching coil: a linear coil and its reset winding, a stiff main supply, no [armature]")
 
 

@@ -105,30 +105,32 @@ def _end(drive: Drive, pb: ArmatureParams, pin: PullInBatch, i_trip: float):
     boost's voltage bounds the current over it (with an eddy term the magnetising current's
     rise through the loop's Thevenin pair, and the terminal current ``(V_b + R_e i_m)/(R +
     R_e)`` from it); the capacitor gives at most that current.
-    With a bouncing seat (``restitution``; no eddy term) a rebound's motional term drives the
+    With a bouncing seat (``restitution``) a rebound's motional term drives the
     current up past that rise: where the armature is in flight at the trip the window is
-    flown, bounces and all (:func:`~coildrive.model.armature_boost.window_flight`), to its
+    flown, bounces and all (:func:`~coildrive.model.armature_boost.window_flight`; with an
+    eddy term the branch's flight, its highest the terminal current's), to its
     end or until the armature rests at a stop, and the open coil's rise bounds only the rest
-    of it, from the current and the capacitor there; the most current is the larger of the
-    flight's highest and that rise's end.
+    of it, from the current (the magnetising current) and the capacitor there; the most
+    current is the larger of the flight's highest and that rise's end.
     Where the trip never comes: ``inf``, ``i_trip``, the boost's full voltage, NaN."""
     dt = conversion_period(drive)
     n = len(pb)
     hit = np.isfinite(pin.trip_time)
     y = np.where(hit, pin.trip_state, 0.0)
     rest, i_from, top = np.full(n, dt), np.full(n, float(i_trip)), np.zeros(n)
-    if pb.eddy is None and np.any(pb.restitution > 0):
+    flown = np.zeros(n, bool)
+    if np.any(pb.restitution > 0):
         flown, high, t_f, y_f = window_flight(pb, pin, dt)
         y = np.where(flown, y_f, y)
-        i_from = np.where(flown, pb.current(y_f[0], y_f[1]), i_from)
         rest = np.where(flown, np.maximum(np.where(hit, pin.trip_time, 0.0) + dt - t_f, 0.0), rest)
         top = np.where(flown, high, top)
     if pb.eddy is None:
+        i_from = np.where(flown, pb.current(y[0], y[1]), i_from)
         i_rise = rise_current(rest, i_from, pb.v_on, pb.r_on, pb.l_open)
-        i_end = np.maximum(i_rise, top)
     else:   # the magnetising current's bound (its Thevenin rise), then the terminal current's
-        i_m = rise_current(dt, pb.current(y[0], y[1]), pb.v_on, pb.r_on, pb.coil_open)
-        i_end = i_rise = np.maximum((pb.v_on + pb.eddy * i_m) / (pb.r_on + pb.eddy), i_trip)
+        i_m = rise_current(rest, pb.current(y[0], y[1]), pb.v_on, pb.r_on, pb.coil_open)
+        i_rise = np.maximum((pb.v_on + pb.eddy * i_m) / (pb.r_on + pb.eddy), i_trip)
+    i_end = np.maximum(i_rise, top)
     if pb.droops:
         u = y[5] - i_rise * rest / pb.capacitance
         y = np.concatenate([y[:5], u[None]])
