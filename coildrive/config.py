@@ -1517,7 +1517,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     an eddy term; on a full bridge every turn-off's fast decay returns into it, the boost
     converter idle or drawing: :mod:`coildrive.design.bridge_bus`, a linear coil or a curve,
     or an eddy term on a supply that sinks; with a moving armature, a linear coil on
-    one switch without a clamp, an eddy term too, the hold's flight on it; not on a full
+    one switch, an eddy term too, the hold's flight on it -- with a clamp across the switch,
+    whose off-times draw from the bus, a linear coil without an eddy term or split decay
+    (:meth:`coildrive.model.armature.ArmatureParams.clamped`); not on a full
     bridge), a PWM
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
     mode), a peak that ends at its threshold. A moving armature
@@ -1560,10 +1562,14 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = "supply.source_resistance", ("a drooping main supply and a moving armature on a full bridge "
                                                 "(the armature's release into the bus with the boost converter "
                                                 "drawing from it is not modelled; one switch is, an eddy term too)")
-    elif armature is not None and supply.droops and freewheel.type == "clamp":
-        key, why = "freewheel.type", ("a drooping main supply, a moving armature and a clamp across the "
-                                      "switch together (the clamp's off-times draw from the bus while the "
-                                      "armature may be in flight)")
+    elif armature is not None and supply.droops and freewheel.type == "clamp" and coil.eddy_resistance:
+        key, why = "coil.eddy_resistance", ("a drooping main supply, a moving armature and a clamp across the "
+                                            "switch with an eddy-current term (the clamp's draw from the bus "
+                                            "while the armature may be in flight is a linear coil's)")
+    elif armature is not None and supply.droops and freewheel.type == "clamp" and freewheel.split_decay:
+        key, why = "freewheel.split_decay", ("a drooping main supply, a moving armature and a clamp bypassed "
+                                             "in the hold (split decay: the clamp's draw from the bus while "
+                                             "the armature may be in flight is modelled in the hold's off-times)")
     elif armature is not None and hold.fast_fraction > 0:
         key, why = "hold.fast_fraction", "a moving armature and a full bridge's mixed-decay hold together"
     elif pull_in.compensate:
@@ -1581,7 +1587,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "diode/zener/resistor freewheel (split decay too) or a clamp, a stiff "
                          "main supply (or a drooping one; on a full bridge a linear coil or a curve, or an "
                          "eddy term on a supply that sinks; with [armature] a linear coil on one switch, an "
-                         "eddy term too, no clamp), a "
+                         "eddy term too, a clamp without one or split decay), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
                          "with [armature]: no mixed decay; a "
                          "latching coil: a linear coil and its reset winding, a stiff main supply, no [armature]")

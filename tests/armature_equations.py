@@ -48,14 +48,17 @@ def current_form(g: dict):
     return ind, slope, opening
 
 
-def boosted_loop(g: dict, boost: tuple, bus: tuple | None = None, r_e: float | None = None):
+def boosted_loop(g: dict, boost: tuple, bus: tuple | None = None, r_e: float | None = None,
+                 clamp: float | None = None):
     """``loop(mode, y)`` -> ``(v_L V, i_t A)`` over ``y = (i, x, v, u)``: the voltage across the
     inductance and the terminal current (what the sense and the source see) in ``mode``
     (:func:`boosted_rhs`). ``r_e``: an eddy resistance across the inductance -- ``i`` is then
     the inductance's current, the loop (``drive``, ``R``) carries ``i_t = (drive + R_e i) / (R
     + R_e)`` and the inductance sees ``R_e (i_t - i)``; freewheeling, while ``i_t > 0``, else
     the path blocks and the flux dies through ``R_e`` alone (``v_L = -R_e i``). In the
-    ``"boost"`` mode ``y`` may hold arrays (no branch)."""
+    ``"boost"`` mode ``y`` may hold arrays (no branch). ``clamp``: a clamp across the switch
+    at that voltage, on the main bus: freewheeling, the current flows on from the bus ``u``
+    through it, ``drive = u - V_clamp``."""
     _, c_b, r_b = boost
 
     def loop(mode, y):
@@ -65,7 +68,7 @@ def boosted_loop(g: dict, boost: tuple, bus: tuple | None = None, r_e: float | N
         elif mode == "on":
             drive, r = (g["v_on"] if bus is None else u), g["r_on"]
         else:
-            drive, r = -g["v_off"], g["r_off"]
+            drive, r = (-g["v_off"] if clamp is None else u - clamp), g["r_off"]
         if r_e is None:
             if mode == "off" and i <= 0:
                 return 0.0, 0.0
@@ -77,17 +80,19 @@ def boosted_loop(g: dict, boost: tuple, bus: tuple | None = None, r_e: float | N
     return loop
 
 
-def boosted_rhs(g: dict, boost: tuple, bus: tuple | None = None, r_e: float | None = None):
+def boosted_rhs(g: dict, boost: tuple, bus: tuple | None = None, r_e: float | None = None,
+                clamp: float | None = None):
     """``rhs(mode, free)`` -> ``f(t, y)`` for solve_ivp over ``y = (i, x, v, u)``: the
     armature in the current (:func:`current_form`) switched on to the boost capacitor
     (``mode`` ``"boost"``: ``boost = (V_b, C_b, R_b)``, ``u`` the capacitor; ``C_b = 0`` an
     ideal boost, ``u`` stays), then the hold (``"on"``, ``"off"``: the freewheel while ``i >
     0``) from the main supply ``g["v_on"]``, or with ``bus = (R_s, C, V_src)`` from the main
     bus ``u`` behind ``R_s`` from ``V_src``; ``free`` False: the armature at rest at its stop.
-    ``r_e``: an eddy resistance across the inductance (:func:`boosted_loop`)."""
+    ``r_e``: an eddy resistance across the inductance, ``clamp``: a clamp across the switch
+    whose off-times draw from the bus (:func:`boosted_loop`)."""
     c_b = boost[1]
     ind, slope, opening = current_form(g)
-    loop = boosted_loop(g, boost, bus, r_e)
+    loop = boosted_loop(g, boost, bus, r_e, clamp)
 
     def rhs(mode, free):
         def f(_t, y):
@@ -97,7 +102,8 @@ def boosted_rhs(g: dict, boost: tuple, bus: tuple | None = None, r_e: float | No
                 du = -term / c_b if c_b > 0 else 0.0
             else:
                 on = mode == "on"
-                du = 0.0 if bus is None else ((bus[2] - u) / bus[0] - (term if on else 0.0)) / bus[1]
+                draws = on or clamp is not None   # (a clamp's off-times draw from the bus too)
+                du = 0.0 if bus is None else ((bus[2] - u) / bus[0] - (term if draws else 0.0)) / bus[1]
             if not free:
                 return [v_l / ind(x), 0.0, 0.0, du]
             di = (v_l - i * slope(x) * v) / ind(x)

@@ -173,26 +173,36 @@ def runs(drive: Drive, p: ArmatureParams, duty, period, i_top, thresholds: tuple
 
 
 def pwm_on_bus(drive: Drive) -> bool:
-    """Whether the hold after the hand-over is a fixed-duty PWM whose off-times draw nothing
-    from the bus (voltage mode, fixed or a supply table; no clamp across the switch): then
-    the drooping bus is run exactly (:func:`coildrive.design.supply.armature_bus`); else
-    :func:`coildrive.design.supply.handover_bus` takes its floor."""
-    return (drive.hold.mode == "voltage" and drive.hold.regulation != "closed_loop"
-            and drive.freewheel.type != "clamp")
+    """Whether the hold after the hand-over is a fixed-duty PWM (voltage mode, fixed or a
+    supply table): then the drooping bus is run exactly through the armature's flights, and
+    after the seat the seated coil's PWM exactly (:func:`coildrive.design.supply.armature_bus`)
+    or, with a clamp across the switch drawing in its off-times, under its floor
+    (:func:`coildrive.design.supply.armature_clamp_bus`); else
+    :func:`coildrive.design.supply.handover_bus` takes the floor from the hand-over on."""
+    return drive.hold.mode == "voltage" and drive.hold.regulation != "closed_loop"
+
+
+def clamp_draws(drive: Drive, p: ArmatureParams) -> ArmatureParams:
+    """``p`` (points on the drooping main bus, ``v_on`` the source's voltage) with the hold's
+    off-times through a clamp across the switch drawing from the bus
+    (:meth:`~coildrive.model.armature.ArmatureParams.clamped`) where the drive has one; else
+    ``p``."""
+    return p.clamped() if p.droops and drive.freewheel.type == "clamp" else p
 
 
 def main_bus(drive: Drive, p: ArmatureParams, i_top) -> tuple[ArmatureParams, np.ndarray]:
     """``(the hold's points, the bus at the hand-over V)``: on a drooping main supply the
     source behind ``R_s`` less the boost converter's draw from the hand-over on (a constant
     current, :func:`coildrive.design.supply.converter_current` with the coil at most
-    ``i_top`` A: ``V_s - R_s I_conv``), the bus starting at ``V_s``; on a stiff one ``p``
-    itself."""
+    ``i_top`` A: ``V_s - R_s I_conv``), the bus starting at ``V_s``, a clamp across the switch
+    drawing from it in the off-times (:func:`clamp_draws`); on a stiff one ``p`` itself."""
     if not p.droops:
         return p, p.v_on
     from .supply import converter_current
 
     i_conv = converter_current(drive, p.v_on, np.where(np.isfinite(i_top), i_top, 0.0))
-    return replace(p, v_on=p.v_on - drive.supply.source_resistance * i_conv), p.v_on.copy()
+    return (replace(clamp_draws(drive, p), v_on=p.v_on - drive.supply.source_resistance * i_conv),
+            p.v_on.copy())
 
 
 def peak_heat(drive: Drive, lp, peak_time) -> np.ndarray:
@@ -377,7 +387,8 @@ def loop_pull_in(drive: Drive, res, loop, counts: int, reading, switch_leg: bool
                           switch_leg, 2**b.adc.bits - 1)
     i_th, code, _ = threshold(drive)
     period = np.ravel(np.broadcast_to(np.asarray(res.hold.period, float), (len(arm.params),)))[late]
-    got = boosted_pull_in(_boost(drive, p, False), p, i_th, control.first(code), period, runs_.window,
+    got = boosted_pull_in(_boost(drive, p, False), clamp_draws(drive, p), i_th, control.first(code), period,
+                          runs_.window,
                           rtol=1e-7, control=control)
     fields = ("status", "seat_time", "seat_current", "impact_time", "impact_speed", "dip_current",
               "dip_time", "stall_gap", "bound", "bounces", "steps")

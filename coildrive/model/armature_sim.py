@@ -162,6 +162,8 @@ def _rest_segment(run: _Run, t_end: float, on: bool, points: int, stop, rtol: fl
     pt = run.pt
     if pt.droop and on and pt.p.curves is not None:
         return _rest_held(run, t_end, rtol)
+    if pt.droop and not on and run.live and pt.p.clamp is not None:
+        return _rest_clamped(run, t_end, rtol)
     if pt.droop:
         return _rest_segment_droop(run, t_end, on, points, stop)
     seated = run.state == "seated"
@@ -270,20 +272,51 @@ def _rest_held(run: _Run, t_end: float, rtol: float) -> None:
         run.state = "free"
         run.mark("move")
         return
-    yes = np.array([True])
-    fl = fly(pt.p, np.array([run.t]), run.y[:, None], np.array([t_end]), yes, yes, yes, rtol,
-             record=True, stiff=pt.stiff, held=yes, flux_to=np.array([math.inf if seated else pt.lam_start]))
-    ts = np.array([a[0] for a in fl.path_t[1:]])
-    ys = np.array([a[:, 0] for a in fl.path_y[1:]]).T if len(fl.path_y) > 1 else np.zeros((pt.rows, 0))
-    keep = np.isfinite(ts)
-    if keep.any():
-        run.emit(ts[keep], ys[:, keep], True)
-    run.t = float(fl.t[0])
-    run.y = fl.y[:, 0].copy()
+    fl = _held_flight(run, t_end, True, rtol, flux_to=np.array([math.inf if seated else pt.lam_start]))
     if int(fl.end[0]) == START:
         run.y[0] = pt.lam_start * (1.0 + 1e-12)
         run.state = "free"
         run.mark("move")
+
+
+def _held_flight(run: _Run, t_end: float, on: bool, rtol: float, **stop):
+    """The flight integrator (``fly(held=...)``) over a resting stretch of ``run`` switched
+    ``on`` (or off) until ``t_end`` or a ``stop`` of :func:`~coildrive.model.armature_flight.fly`
+    (``flux_to``, ``flux_down``), its accepted steps emitted and ``run`` moved to its end;
+    returns the flight."""
+    pt = run.pt
+    yes = np.array([True])
+    fl = fly(pt.p, np.array([run.t]), run.y[:, None], np.array([t_end]), yes, np.array([on]), yes, rtol,
+             record=True, stiff=pt.stiff, held=yes, **stop)
+    ts = np.array([a[0] for a in fl.path_t[1:]])
+    ys = np.array([a[:, 0] for a in fl.path_y[1:]]).T if len(fl.path_y) > 1 else np.zeros((pt.rows, 0))
+    keep = np.isfinite(ts)
+    if keep.any():
+        run.emit(ts[keep], ys[:, keep], on)
+    run.t = float(fl.t[0])
+    run.y = fl.y[:, 0].copy()
+    return fl
+
+
+def _rest_clamped(run: _Run, t_end: float, rtol: float) -> None:
+    """A resting armature switched off on the drooping bus with a clamp across the switch
+    (``p.clamp``, a linear coil): the current flows on from the bus through the clamp
+    (``L di/dt = u - V_c - R_off i``, the bus feeding it) -- the flight integrator with the
+    armature held at its stop (``fly(held=...)``) until ``t_end``, the current's zero (the
+    clamp stops conducting; the bus then relaxes alone, :func:`_rest_segment_droop`) or, on
+    the seat, the flux falling to the stay current's (the armature lets go)."""
+    pt = run.pt
+    seated = run.state == "seated"
+    fl = _held_flight(run, t_end, False, rtol, flux_down=np.array([pt.lam_stay if seated else -math.inf]))
+    end = int(fl.end[0])
+    if end == ZERO:
+        run.live = False
+        run.y[0] = 0.0
+        run.mark("zero")
+    elif end == START:   # on the seat, down to the stay current: it lets go
+        run.y[0] = pt.lam_stay * (1.0 - 1e-12)
+        run.state = "free"
+        run.mark("unlatch")
 
 
 def _rest_segment_droop(run: _Run, t_end: float, on: bool, points: int, stop) -> None:

@@ -621,6 +621,8 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     main = (params_from_loop(drive.armature, lp, l_factor, drive.coil.eddy_resistance,
                              bus=(s.source_resistance, s.capacitance))
             if s.boosted and s.droops and hold is None else None)
+    if main is not None and drive.freewheel.type == "clamp":   # its off-times draw from the bus
+        main = main.clamped()
     main_bus = None
     split = split_decay(drive)
     bridge = full_bridge(drive)   # the hold decays slowly, the release fast into the bus
