@@ -27,7 +27,6 @@ from __future__ import annotations
 
 import json
 import math
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -247,13 +246,8 @@ def test_a_bouncing_armature_with_an_eddy_term_designs_simulates_and_emulates(tm
     at the end of the peak at least the threshold; ``simulate`` shows the bounces (the
     position back at 0 more than once) and the magnetising current; the virtual device's
     capture passes ``check`` (plumbing: it shares the design's physics)."""
-    import sys
+    from test_emulator_device import emulated_passes_check
 
-    sys.path.insert(0, str(Path(__file__).parent))
-    from test_emulator_device import capture_of, run as run_device
-
-    from coildrive.bench.check import check_capture
-    from coildrive.bench.device import DeviceOptions, VirtualDevice
     from coildrive.config import load_drive
     from coildrive.design import design
 
@@ -278,7 +272,4 @@ def test_a_bouncing_armature_with_an_eddy_term_designs_simulates_and_emulates(tm
     seated = data["position_m"] <= 0.0
     assert np.count_nonzero(seated[1:] & ~seated[:-1]) > 2 and "magnetising_current_a" in data.dtype.names
     dz = design(load_drive(path))
-    dev = VirtualDevice(dz.drive, DeviceOptions(noise_codes=1.0, seed=3, hold_time=0.004), design=dz)
-    msgs, _ = run_device(dev, 0.05 + 2 * dev.period, step=0.05)
-    report = check_capture(capture_of(msgs, tmp_path / "c.cdcap"), dz)
-    assert report.ok, [(i.name, i.status, i.detail) for i in report.items if i.status == "FAIL"]
+    emulated_passes_check(dz, tmp_path)

@@ -22,7 +22,6 @@ invented cable, bulk capacitor and 40 V or 60 V clamp) is invented.
 
 from __future__ import annotations
 
-import json
 import math
 from pathlib import Path
 
@@ -32,7 +31,7 @@ import pytest
 from armature_equations import boost_peak, boosted_events, boosted_rhs, current_form, hold_on_bus
 from conftest import EXAMPLES, run_cli
 from test_boost_armature import BOOST, DUTY, EXAMPLE, LC, PERIOD, POINT
-from test_boost_armature_droop import C_BUS, R_S, _held_at_zero
+from test_boost_armature_droop import C_BUS, R_S, _held_at_zero, designed_on_the_bus
 
 from coildrive.model.armature import SEATED, ArmatureParams
 from coildrive.model.armature_boost import boost_params, boosted_pull_in, seated_in_peak
@@ -150,31 +149,22 @@ def _clamped(folder: Path) -> Path:
 
 
 def test_design_simulate_and_emulate_with_the_clamp_on_the_drooping_bus(tmp_path):
-    """``coildrive design --json`` (a real subprocess): seated at every corner (some in the
-    hold, flown on the bus through the clamp's draws), the lowest bus the flights' and the
-    floor's after the seat (named). ``simulate`` at 9 V with the
+    """``coildrive design --json`` (a real subprocess, tests/test_boost_armature_droop.py
+    ``designed_on_the_bus``): seated at every corner (some in the hold, flown on the bus
+    through the clamp's draws), the lowest bus the flights' and the floor's after the seat
+    (named). ``simulate`` at 9 V with the
     nominal coil stays at or above the design's lowest bus (a bound over the envelope); the
     virtual device's capture passes ``check`` (plumbing: it shares the design's physics);
     an eddy term with it, and split decay, stay refused in one line."""
-    import sys
+    from test_emulator_device import emulated_passes_check
 
-    sys.path.insert(0, str(Path(__file__).parent))
-    from test_emulator_device import capture_of, run as run_device
-
-    from coildrive.bench.check import check_capture
-    from coildrive.bench.device import DeviceOptions, VirtualDevice
     from coildrive.config import load_drive
     from coildrive.design import design
     from coildrive.errors import InputError
 
     path = _clamped(tmp_path)
-    r = run_cli("design", str(path), "--json")
-    assert r.returncode in (0, 1), r.stderr
-    d = json.loads(r.stdout)
-    a, s = d["armature"], d["supply"]
-    assert a["seated_corners"] == a["corners"] and a["seated_in_peak_corners"] < a["corners"]
-    assert s["lowest_bus_method"].startswith("the armature's runs from the hand-over") and "clamp" in s[
-        "lowest_bus_method"]
+    s = designed_on_the_bus(str(path))["supply"]
+    assert "clamp's off-times" in s["lowest_bus_method"]
     out = tmp_path / "c.csv"
     r = run_cli("simulate", str(path), "--supply", "9", "--coil-temp", "-40", "--hold-time", "0.001",
                 "--csv", str(out))
@@ -183,10 +173,7 @@ def test_design_simulate_and_emulate_with_the_clamp_on_the_drooping_bus(tmp_path
     assert np.min(data["position_m"]) == 0.0
     assert s["lowest_bus_v"] <= np.min(data["bus_v"]) < 9.0
     dz = design(load_drive(path))
-    dev = VirtualDevice(dz.drive, DeviceOptions(noise_codes=1.0, seed=3, hold_time=0.004), design=dz)
-    msgs, _ = run_device(dev, 0.05 + 2 * dev.period, step=0.05)
-    report = check_capture(capture_of(msgs, tmp_path / "c.cdcap"), dz)
-    assert report.ok, [(i.name, i.status, i.detail) for i in report.items if i.status == "FAIL"]
+    emulated_passes_check(dz, tmp_path)
     text = path.read_text()
     for key, edit in (("coil.eddy_resistance", ("inductance_tolerance = 0.10",
                                                 'inductance_tolerance = 0.10\neddy_resistance = "1 kohm"')),
@@ -204,18 +191,7 @@ def test_firmware_in_the_loop_through_the_clamp_on_the_bus(tmp_path):
     the device flies the hold on the main bus, the clamp's off-times drawing from it
     (bench/boost_flight.py), and ``check`` passes (lean: one corner; plumbing, the device
     shares the model)."""
-    from driver_harness import checked_rows, loop_captures
-
-    from coildrive.bench.messages import EventKind
-    from coildrive.config import load_drive
-    from coildrive.design import design
+    from driver_harness import hot_nominal_loop_passes
 
     (tmp_path / "d").mkdir()
-    path = _clamped(tmp_path / "d")
-    d = design(load_drive(path))
-    hot = max(c.coil_temp_c for c in d.corners)
-    (cap_path, cap), = loop_captures(tmp_path, d, [(d.drive.supply.nominal, hot, None)], hold_time=0.01)
-    assert int(EventKind.FAULT) not in [int(e.kind) for e in cap.events]
-    rows = checked_rows(cap_path, str(path), hot)
-    assert {n for n, i in rows.items() if i["status"] == "pass"} >= {
-        "pull_in_time", "peak_duration", "hold_mean", "release_time"}
+    hot_nominal_loop_passes(tmp_path, _clamped(tmp_path / "d"))

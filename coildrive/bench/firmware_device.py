@@ -53,7 +53,8 @@ voltage at its switch-on. With an ``[armature]`` on the boosted peak the armatur
 as the driver switches (:mod:`coildrive.bench.boost_flight`: the boost, the threshold's
 conversion, the hold's PWM edges) until it rests on the seat, then the seated coil's closed
 form; on a drooping main supply the flight carries the main bus from the hand-over (the
-converter's draw out of the source), which the supply conversions read until the seat.
+converter's draw out of the source), which the supply conversions read until the seat; on a full bridge the release into the bus then runs with
+the converter's draw out of the source too.
 
 A full bridge's mixed-decay hold (``hold.fast_fraction``): each off-time decays through
 the fast path (all four open) up to the timer count the driver gives through its
@@ -75,6 +76,7 @@ segments are those of the seated coil.
 from __future__ import annotations
 
 import ctypes
+import dataclasses
 import math
 from pathlib import Path
 
@@ -373,6 +375,10 @@ class FirmwareDevice(LineOutput):
             start = (p.flux_closed(np.array([max(i_m, 0.0)])), np.array([0.0]), np.array([0.0]))
             v0 = float(self.supply)
         v0 = min(v0, float(self.supply))
+        if self._arm is not None and self._arm.p_main is not None:
+            # after a boosted peak on the drooping main bus: the converter still drawing from it
+            # (its current out of the source, as the flight and simulate take it)
+            p = dataclasses.replace(p, v_on=self._arm.p_main.v_on)
         r = release(p, 0.0, v0, float(fast.v_off - fast.v_on), sink=self.drive.supply.sink, start=start, record=8)
         tt, y, i_t = r.path
         self._log.append(LogEntry(t, f"release into the bus from {float(p.current(start[0], start[1])[0]):.6g} A "

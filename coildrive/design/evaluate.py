@@ -227,7 +227,12 @@ def _release_on_bus(drive: Drive, flat_rel: Loop, l_factor, shape, pin, i_max):
     ``i_max`` A (with an eddy term the terminal current they bound),
     :func:`~coildrive.model.supply.bus_floor` under it (as
     :func:`coildrive.design.bridge_bus.bus_range`), never below ``-2 V_d``; ``i_max`` and
-    the release's currents are magnetising currents with an eddy term."""
+    the release's currents are magnetising currents with an eddy term. After a boosted peak
+    (its pull-in the boost's runs, the lowest bus theirs on the main bus) the boost
+    converter recharges from the main bus from the hand-over on: it may be idle or drawing
+    its most at the turn-off (:func:`coildrive.design.supply.converter_current` with the coil
+    at most that top, as :func:`coildrive.design.bridge_bus.converter_draw` takes it), so
+    the floor takes its draw too and the release runs with it idle and drawing (``drains``)."""
     from ..model.armature import params_from_loop
     from ..model.armature_bus_release import release_over
     from ..model.bus_decay import STARTS
@@ -243,10 +248,15 @@ def _release_on_bus(drive: Drive, flat_rel: Loop, l_factor, shape, pin, i_max):
     if p_bus.eddy is not None:   # the bus feeds the terminal current: at most (V_s + R_e i_m)/(R + R_e)
         from ..model.eddy import terminal
         top = terminal(top, v_s, p_bus.r_on, p_bus.eddy)
+    drains = ()
+    if s.boosted and s.converter_draw > 0:
+        from .supply import converter_current
+
+        drains = (converter_current(drive, v_s, top),)
     low = np.where(np.isfinite(pin.lowest_bus), pin.lowest_bus, v_s)
-    lowest = np.maximum(np.minimum(low, bus_floor(v_s, s.source_resistance, top)), -v_d2)
+    lowest = np.maximum(np.minimum(low, bus_floor(v_s, s.source_resistance, top + sum(drains))), -v_d2)
     return release_over(p_bus, np.where(np.isfinite(i_max), i_max, 0.0), lowest, v_s, v_d2, STARTS,
-                        sink=s.sink)
+                        sink=s.sink, drains=drains)
 
 
 def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,

@@ -49,7 +49,7 @@ Units: SI throughout (V, A, ohm, H, m, kg, N, s, F).
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -230,19 +230,33 @@ def _path(p: ArmatureParams, pieces, v_d2, sink: bool, dense: int) -> tuple:
 
 
 def release_over(p: ArmatureParams, i_off, lowest, highest, v_diodes, starts: int,
-                 rtol: float = 1e-7, sink: bool = True) -> BusRelease:
+                 rtol: float = 1e-7, sink: bool = True, drains=()) -> BusRelease:
     """:func:`release` from ``starts`` starting buses evenly over ``[lowest, highest]`` V
     per point (the range the bus can be in at the turn-off), all in one batch; per point
     each figure the worst over the starts: the latest unlatch, open stop and zero current,
     the most charge and ``int i^2 dt``, the highest bus (its time and the bus at zero
     current from the start that gives it); a point that fails to open from any start
     fails (``NOT_OPEN``, its gap from that start); with an eddy term the most eddy loss and
-    the highest block current."""
+    the highest block current.
+
+    ``drains``: constant currents (A per point) something else draws off the bus during the
+    release -- a boost converter recharging from it -- each run from every start too, the
+    worst over them all (and the bus with nothing drawn): a supply that sinks behind ``R_s``
+    with ``I`` drawn off its bus is the source ``V_s - R_s I`` (Thevenin: ``C du/dt = (V_s -
+    u)/R_s - I + i = (V_s - R_s I - u)/R_s + i``, exact)."""
     n = len(p)
     lo, hi = (np.broadcast_to(np.asarray(a, float), (n,)) for a in (lowest, highest))
-    v0 = np.concatenate([lo + (hi - lo) * k / max(starts - 1, 1) for k in range(starts)])
+    if drains and not sink:
+        raise ValueError("a drain off the bus of a supply that cannot sink is no Thevenin source")
+    sources = [p.v_on] + [p.v_on - p.source_resistance * np.broadcast_to(np.asarray(d, float), (n,))
+                          for d in drains]
+    v0 = np.concatenate([lo + (hi - lo) * k / max(starts - 1, 1) for k in range(starts)] * len(sources))
+    starts = starts * len(sources)
     idx = np.tile(np.arange(n), starts)
-    r = release(p.take(idx), np.tile(np.broadcast_to(np.asarray(i_off, float), (n,)), starts), v0,
+    q = p.take(idx)
+    if len(sources) > 1:
+        q = replace(q, v_on=np.concatenate([np.tile(v, starts // len(sources)) for v in sources]))
+    r = release(q, np.tile(np.broadcast_to(np.asarray(i_off, float), (n,)), starts), v0,
                 np.tile(np.broadcast_to(np.asarray(v_diodes, float), (n,)), starts), rtol, sink=sink)
     b = r.run
 
