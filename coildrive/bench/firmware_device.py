@@ -375,11 +375,17 @@ class FirmwareDevice(LineOutput):
             start = (p.flux_closed(np.array([max(i_m, 0.0)])), np.array([0.0]), np.array([0.0]))
             v0 = float(self.supply)
         v0 = min(v0, float(self.supply))
+        drain = None
         if self._arm is not None and self._arm.p_main is not None:
             # after a boosted peak on the drooping main bus: the converter still drawing from it
-            # (its current out of the source, as the flight and simulate take it)
-            p = dataclasses.replace(p, v_on=self._arm.p_main.v_on)
-        r = release(p, 0.0, v0, float(fast.v_off - fast.v_on), sink=self.drive.supply.sink, start=start, record=8)
+            # (as the flight and simulate take it: out of the source, or off a supply that
+            # cannot sink as a current)
+            if self.drive.supply.sink:
+                p = dataclasses.replace(p, v_on=self._arm.p_main.v_on)
+            else:
+                drain = (p.v_on - self._arm.p_main.v_on) / self.drive.supply.source_resistance
+        r = release(p, 0.0, v0, float(fast.v_off - fast.v_on), sink=self.drive.supply.sink, start=start, record=8,
+                    drain=drain)
         tt, y, i_t = r.path
         self._log.append(LogEntry(t, f"release into the bus from {float(p.current(start[0], start[1])[0]):.6g} A "
                                      f"at {v0:.6g} V: current stops after {1e3 * float(r.run.zero_time[0]):.6g} ms, "

@@ -72,6 +72,10 @@ class _Rhs:
         C du/dt    = (V_s - u)/R_s + i           (a supply that cannot sink, ``sink`` False:
                                                  max(V_s - u, 0)/R_s, its feed one-way)
 
+    ``drain`` (A per point): a constant current something else draws off the bus besides
+    (a boost converter recharging from it), ``- drain`` in ``C du/dt``: on a supply that
+    cannot sink, where no Thevenin source takes its place.
+
     A clamp across the switch on the drooping bus (``p.clamp``, ``V_c`` V per point) draws
     from it instead, switched off, while the current flows (the same pair of rows with the
     bus's sign turned)::
@@ -94,7 +98,7 @@ class _Rhs:
     """
 
     def __init__(self, p: ArmatureParams, on: np.ndarray, live: np.ndarray, held: np.ndarray | None = None,
-                 returns: np.ndarray | None = None, sink: bool = True):
+                 returns: np.ndarray | None = None, sink: bool = True, drain: np.ndarray | None = None):
         self.curves = p.curves
         #: 1 where switched off into the drooping bus (a bridge's fast decay), else 0
         self.back = None
@@ -111,6 +115,8 @@ class _Rhs:
             self.k_back = self.back
         #: False: the source feeds the bus only while it is below V_s (an ideal feed diode)
         self.sink = sink
+        #: A drawn off the bus besides the coil (see the class docstring), or None
+        self.drain = drain
         #: 0 where the armature is held at its stop (``x``, ``v`` frozen: a resting stretch), else 1
         self.free = 1.0 if held is None else 1.0 - held.astype(float)
         self.inv_m = 1.0 / p.mass
@@ -269,6 +275,8 @@ class _Rhs:
             feed = self.on if self.back is None else self.on + self.sign * self.back * self.live
             fed = self.v_s - u if self.sink else np.maximum(self.v_s - u, 0.0)
             out[5] = self.g_s * fed - feed * self.inv_c * i
+            if self.drain is not None:
+                out[5] = out[5] - self.drain * self.inv_c
         out[3] = i
         out[4] = i * i
         return out
@@ -376,7 +384,7 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
         low_until: np.ndarray | None = None, held: np.ndarray | None = None,
         flux_to: np.ndarray | None = None, current_to: np.ndarray | None = None,
         flux_down: np.ndarray | None = None, returns: np.ndarray | None = None,
-        high: np.ndarray | None = None, sink: bool = True) -> Flight:
+        high: np.ndarray | None = None, sink: bool = True, drain: np.ndarray | None = None) -> Flight:
     """Integrate the free armature of every ``active`` point from ``t`` until a stop, the
     current reaching zero (switch off), or ``t_end``.
 
@@ -411,7 +419,8 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
     returns : V per point, a full bridge's two body diodes ``2 V_d``: switched off, the
     current returns into the drooping bus (:class:`_Rhs`); high : then the running
     highest capacitor voltage and its time (2 x N: V, s), as ``low``; sink : False, a
-    supply that cannot sink (its feed one-way: ``max(V_s - u, 0)/R_s``)
+    supply that cannot sink (its feed one-way: ``max(V_s - u, 0)/R_s``); drain : A per point
+    drawn off the bus besides (:class:`_Rhs`)
 
     A batch of one point goes through :func:`fly_point` (Python floats: numpy's per-call
     overhead on 1-element arrays would dominate; same algorithm and results; the coil's
@@ -431,7 +440,7 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
     active = active.copy() & (t < t_end)
     end = np.where(active, RUNNING, BOUND)
     steps = np.zeros(n, int)
-    rhs = _Rhs(p, on, live, held, returns, sink)
+    rhs = _Rhs(p, on, live, held, returns, sink, drain)
     free = np.ones(n, bool) if held is None else ~held
     target = np.full(n, np.inf) if flux_to is None else np.broadcast_to(flux_to, (n,))
     floor = None if flux_down is None else np.broadcast_to(flux_down, (n,))

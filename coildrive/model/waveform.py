@@ -777,9 +777,12 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
         if main_bus is None:
             tr = _bus_release(tr, p_bus, t_off, float(fast.v_off - fast.v_on), s.sink, points)
         else:   # after a boost: from the main bus at the turn-off, the converter still drawing
+            # (on a supply that sinks its Thevenin source, on one that cannot its current)
             boost_rows = tr.bus
-            tr = _bus_release(tr, dataclasses.replace(p_bus, v_on=np.array(fed[-1:])), t_off,
-                              float(fast.v_off - fast.v_on), s.sink, points, bus=main_bus)
+            drain = np.array([(float(p_bus.v_on[0]) - fed[-1]) / s.source_resistance])
+            tr = _bus_release(tr, dataclasses.replace(p_bus, v_on=np.array(fed[-1:])) if s.sink else p_bus,
+                              t_off, float(fast.v_off - fast.v_on), s.sink, points, bus=main_bus,
+                              drain=None if s.sink else drain)
             main_bus = tr.bus   # (the boost's trace reads tr.bus up to the peak's end only)
             k = int(np.searchsorted(tr.time, t_off * (1.0 - 1e-12)))
             tr.bus = np.concatenate([boost_rows[:k + 1], main_bus[k + 1:]])
@@ -863,7 +866,7 @@ def converter_fed(drive: Drive, main, i_hand: float, duty: float, frequency: flo
     return dataclasses.replace(main, v_on=main.v_on - s.source_resistance * i_conv)
 
 
-def _bus_release(tr, p_bus, t_off: float, v_d2: float, sink: bool, points: int, bus=None):
+def _bus_release(tr, p_bus, t_off: float, v_d2: float, sink: bool, points: int, bus=None, drain=None):
     """``tr`` (a moving armature's actuation on a full bridge, its hold on the stiff bus) with
     its release from the final turn-off at ``t_off`` s replaced by the run into the drooping
     bus (:func:`coildrive.model.armature_bus_release.release` from the state there, the bus
@@ -871,7 +874,8 @@ def _bus_release(tr, p_bus, t_off: float, v_d2: float, sink: bool, points: int, 
     samples an integrator step): the current (terminal), the flux, the motion, the bus and
     the moments after the turn-off (unlatch, open, zero) are the run's. ``bus``: the bus's
     samples up to the turn-off (V, at ``tr.time``; the hold after a boost on the main bus),
-    the release starting from its value there instead."""
+    the release starting from its value there instead; ``drain``: A drawn off the bus besides
+    (:func:`~coildrive.model.armature_bus_release.release`)."""
     from .armature import OPENED
     from .armature_bus_release import release
 
@@ -881,7 +885,7 @@ def _bus_release(tr, p_bus, t_off: float, v_d2: float, sink: bool, points: int, 
     flux = float(tr.flux[k]) if full else float(p_bus.flux_closed(np.array([tr.current[k]]))[0])
     start = (np.array([flux]), np.array([float(tr.position[k])]), np.array([float(tr.velocity[k])]))
     v0 = float(p_bus.v_on[0]) if bus is None else float(bus[k])
-    r = release(p_bus, 0.0, v0, v_d2, sink=sink, start=start, record=max(points, 2))
+    r = release(p_bus, 0.0, v0, v_d2, sink=sink, start=start, record=max(points, 2), drain=drain)
     t, y, i_t = r.path
     eddy = p_bus.eddy is not None
     j = 0 if eddy else 1   # (with an eddy term the terminal current steps at the turn-off: both rows)
