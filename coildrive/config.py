@@ -1518,7 +1518,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     converter idle or drawing: :mod:`coildrive.design.bridge_bus`, a linear coil or a curve,
     or an eddy term on a supply that sinks; with a moving armature, a linear coil on
     one switch, an eddy term too, the hold's flight on it -- with a clamp across the switch,
-    whose off-times draw from the bus, a linear coil without an eddy term or split decay
+    whose off-times draw from the bus, without split decay
     (:meth:`coildrive.model.armature.ArmatureParams.clamped`); on a full bridge its release
     into the bus with the converter idle or drawing,
     :func:`coildrive.model.armature_bus_release.release_over`), a PWM
@@ -1559,10 +1559,6 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = "freewheel.type", ("a latching coil's pulses from the boost with a clamp across the switch "
                                       "(the clamp's draw after each pulse is the main bus's: modelled without "
                                       "a boost only)")
-    elif armature is not None and supply.droops and freewheel.type == "clamp" and coil.eddy_resistance:
-        key, why = "coil.eddy_resistance", ("a drooping main supply, a moving armature and a clamp across the "
-                                            "switch with an eddy-current term (the clamp's draw from the bus "
-                                            "while the armature may be in flight is a linear coil's)")
     elif armature is not None and supply.droops and freewheel.type == "clamp" and freewheel.split_decay:
         key, why = "freewheel.split_decay", ("a drooping main supply, a moving armature and a clamp bypassed "
                                              "in the hold (split decay: the clamp's draw from the bus while "
@@ -1584,7 +1580,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "diode/zener/resistor freewheel (split decay too) or a clamp, a stiff "
                          "main supply (or a drooping one; on a full bridge a linear coil or a curve, or an "
                          "eddy term on a supply that sinks; with [armature] a linear coil, an eddy term too, "
-                         "a clamp without one or split decay), a "
+                         "a clamp without split decay), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
                          "with [armature]: no mixed decay; a "
                          "latching coil: a linear coil and its reset winding, a stiff main supply, no [armature]")

@@ -225,11 +225,14 @@ class ArmatureParams:
         while the freewheel conducts and 0 once that would be negative (the path
         blocks). Without an eddy term the coil's current itself (0 or more).
         ``r_off``/``v_off``: another freewheel path's (split decay's fast path);
-        ``bus``: on a drooping bus the capacitor's voltage V in place of ``V_on``."""
+        ``bus``: on a drooping bus the capacitor's voltage V in place of ``V_on`` (and with a
+        clamp across the switch, :attr:`clamp`, off ``V_off = V_clamp - bus``)."""
         i_m = np.asarray(i_m, float)
         if self.eddy is None:
             return np.maximum(i_m, 0.0)
         r_off = self.r_off if r_off is None else r_off
+        if v_off is None and self.clamp is not None and bus is not None:
+            v_off = self.clamp - np.asarray(bus, float)
         v_off = self.v_off if v_off is None else v_off
         re_ = self.eddy
         v_on = self.v_on if bus is None else np.asarray(bus, float)
