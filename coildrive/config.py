@@ -1516,8 +1516,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     the hand-over: :func:`coildrive.design.supply.handover_bus`, a linear coil, a curve or
     an eddy term; on a full bridge every turn-off's fast decay returns into it, the boost
     converter idle or drawing: :mod:`coildrive.design.bridge_bus`, a linear coil or a curve,
-    or an eddy term on a supply that sinks; with a moving armature, a linear coil on
-    one switch, an eddy term too, the hold's flight on it -- with a clamp across the switch,
+    or an eddy term on a supply that sinks; with a moving armature, a linear coil (an eddy
+    term too), the hold's flight on it -- with a clamp across the switch,
     whose off-times draw from the bus, without split decay
     (:meth:`coildrive.model.armature.ArmatureParams.clamped`); on a full bridge its release
     into the bus with the converter idle or drawing,
