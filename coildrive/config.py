@@ -1491,9 +1491,12 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     converter idle or drawing: :mod:`coildrive.design.bridge_bus`, a linear coil or a curve,
     an eddy term on a linear coil (on a supply that cannot sink
     :func:`coildrive.model.bus_decay.eddy_decay_drawn_no_sink`), or on a curve on a supply
-    that sinks; with a moving armature, a linear coil on
-    one switch without a clamp, an eddy term too, the hold's flight on it; not on a full
-    bridge), a PWM
+    that sinks; with a moving armature, a linear coil (an eddy
+    term too), the hold's flight on it -- with a clamp across the switch,
+    whose off-times draw from the bus, without split decay
+    (:meth:`coildrive.model.armature.ArmatureParams.clamped`); on a full bridge its release
+    into the bus with the converter idle or drawing,
+    :func:`coildrive.model.armature_bus_release.release_over`, a slow-decay hold), a PWM
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
     mode), a peak that ends at its threshold. A moving armature
     (:mod:`coildrive.model.armature_boost`): a linear coil (an eddy term too), a
@@ -1503,8 +1506,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     :func:`coildrive.design.boost_armature.loop_pull_in`) or a current-mode hold -- that one
     (and the closed loop with an eddy term) where the design finds the armature seated
     within the peak at every corner
-    (:func:`coildrive.design.boost_armature.require_seated_in_peak`), a bouncing seat (``restitution``) without an
-    eddy term (the conversion after the threshold flown: :func:`coildrive.model.armature_boost.window_flight`),
+    (:func:`coildrive.design.boost_armature.require_seated_in_peak`), a bouncing seat (``restitution``;
+    an eddy term too: the conversion after the threshold flown, :func:`coildrive.model.armature_boost.window_flight`),
     an on/off cycle (the peak's heat is the run's copper integral, with an eddy term plus its core loss
     bounded by the first law: :func:`coildrive.design.boost_armature.peak_heat`).
     A latching coil's set and reset pulses from the boost, each ending at its own threshold
@@ -1535,18 +1538,14 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = "freewheel.type", ("a latching coil's pulses from the boost with a clamp across the switch "
                                       "(the clamp's draw after each pulse is the main bus's: modelled without "
                                       "a boost only)")
-    elif armature is not None and supply.droops and switch.topology == "full_bridge":
-        key, why = "supply.source_resistance", ("a drooping main supply and a moving armature on a full bridge "
-                                                "(the armature's release into the bus with the boost converter "
-                                                "drawing from it is not modelled; one switch is, an eddy term too)")
-    elif armature is not None and supply.droops and freewheel.type == "clamp":
-        key, why = "freewheel.type", ("a drooping main supply, a moving armature and a clamp across the "
-                                      "switch together (the clamp's off-times draw from the bus while the "
-                                      "armature may be in flight)")
-    elif armature is not None and armature.restitution > 0 and coil.eddy_resistance:
-        key, why = "armature.restitution", ("a moving armature that bounces off the seat and an eddy-current "
-                                            "term together (the end current's window is flown for a plain coil "
-                                            "only)")
+    elif armature is not None and supply.droops and freewheel.type == "clamp" and freewheel.split_decay:
+        key, why = "freewheel.split_decay", ("a drooping main supply, a moving armature and a clamp bypassed "
+                                             "in the hold (split decay: the clamp's draw from the bus while "
+                                             "the armature may be in flight is modelled in the hold's off-times)")
+    elif armature is not None and supply.droops and hold.fast_fraction > 0:
+        key, why = "hold.fast_fraction", ("a moving armature, a full bridge's mixed-decay hold and a drooping main "
+                                          "supply together (the hold's fast parts into the bus with the boost "
+                                          "converter drawing from it; on a stiff main supply it is designed)")
     elif pull_in.compensate:
         key, why = "pull_in.compensate", ("a supply-compensated peak (the boosted peak runs from the boost, "
                                           "not the main supply, and ends at its threshold: nothing to compensate)")
@@ -1562,10 +1561,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "diode/zener/resistor freewheel (split decay too) or a clamp, a stiff "
                          "main supply (or a drooping one; on a full bridge a linear coil or a curve, an eddy "
                          "term on a linear coil, or on a curve on a supply that sinks; with [armature] a "
-                         "linear coil on one switch, an "
-                         "eddy term too, no clamp), a "
-                         "voltage-mode or current-mode hold, a peak without compensate or settle_time; "
-                         "with [armature]: no restitution with an eddy term; a "
+                         "linear coil, an eddy term too, a clamp without split decay, on a full bridge a "
+                         "slow-decay hold), a "
+                         "voltage-mode or current-mode hold, a peak without compensate or settle_time; a "
                          "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, or a "
                          "linear coil on a full bridge with a boost capacitor on a stiff main supply; a stiff or a "
                          "drooping main supply, no reset settle_time; with [armature] a linear coil on a stiff main "

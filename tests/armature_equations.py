@@ -48,28 +48,62 @@ def current_form(g: dict):
     return ind, slope, opening
 
 
-def boosted_rhs(g: dict, boost: tuple, bus: tuple | None = None):
+def boosted_loop(g: dict, boost: tuple, bus: tuple | None = None, r_e: float | None = None,
+                 clamp: float | None = None):
+    """``loop(mode, y)`` -> ``(v_L V, i_t A)`` over ``y = (i, x, v, u)``: the voltage across the
+    inductance and the terminal current (what the sense and the source see) in ``mode``
+    (:func:`boosted_rhs`). ``r_e``: an eddy resistance across the inductance -- ``i`` is then
+    the inductance's current, the loop (``drive``, ``R``) carries ``i_t = (drive + R_e i) / (R
+    + R_e)`` and the inductance sees ``R_e (i_t - i)``; freewheeling, while ``i_t > 0``, else
+    the path blocks and the flux dies through ``R_e`` alone (``v_L = -R_e i``). In the
+    ``"boost"`` mode ``y`` may hold arrays (no branch). ``clamp``: a clamp across the switch
+    at that voltage, on the main bus: freewheeling, the current flows on from the bus ``u``
+    through it, ``drive = u - V_clamp``."""
+    _, c_b, r_b = boost
+
+    def loop(mode, y):
+        i, u = y[0], y[3]
+        if mode == "boost":
+            drive, r = (u if c_b > 0 else boost[0]), g["r_on"] + r_b
+        elif mode == "on":
+            drive, r = (g["v_on"] if bus is None else u), g["r_on"]
+        else:
+            drive, r = (-g["v_off"] if clamp is None else u - clamp), g["r_off"]
+        if r_e is None:
+            if mode == "off" and i <= 0:
+                return 0.0, 0.0
+            return drive - r * i, i
+        term = (drive + r_e * i) / (r + r_e)
+        if mode == "off" and term <= 0:
+            return -r_e * i, 0.0
+        return r_e * (term - i), term
+    return loop
+
+
+def boosted_rhs(g: dict, boost: tuple, bus: tuple | None = None, r_e: float | None = None,
+                clamp: float | None = None):
     """``rhs(mode, free)`` -> ``f(t, y)`` for solve_ivp over ``y = (i, x, v, u)``: the
     armature in the current (:func:`current_form`) switched on to the boost capacitor
-    (``mode`` ``"boost"``: ``boost = (V_b, C_b, R_b)``, ``u`` the capacitor), then the hold
-    (``"on"``, ``"off"``: the freewheel while ``i > 0``) from the main supply ``g["v_on"]``,
-    or with ``bus = (R_s, C, V_src)`` from the main bus ``u`` behind ``R_s`` from ``V_src``;
-    ``free`` False: the armature at rest at its stop."""
-    _, c_b, r_b = boost
+    (``mode`` ``"boost"``: ``boost = (V_b, C_b, R_b)``, ``u`` the capacitor; ``C_b = 0`` an
+    ideal boost, ``u`` stays), then the hold (``"on"``, ``"off"``: the freewheel while ``i >
+    0``) from the main supply ``g["v_on"]``, or with ``bus = (R_s, C, V_src)`` from the main
+    bus ``u`` behind ``R_s`` from ``V_src``; ``free`` False: the armature at rest at its stop.
+    ``r_e``: an eddy resistance across the inductance, ``clamp``: a clamp across the switch
+    whose off-times draw from the bus (:func:`boosted_loop`)."""
+    c_b = boost[1]
     ind, slope, opening = current_form(g)
+    loop = boosted_loop(g, boost, bus, r_e, clamp)
 
     def rhs(mode, free):
         def f(_t, y):
             i, x, v, u = y
+            v_l, term = loop(mode, y)
             if mode == "boost":
-                v_l, du = u - (g["r_on"] + r_b) * i, -i / c_b
+                du = -term / c_b if c_b > 0 else 0.0
             else:
                 on = mode == "on"
-                if on:
-                    v_l = (g["v_on"] if bus is None else u) - g["r_on"] * i
-                else:
-                    v_l = -(g["r_off"] * i + g["v_off"]) if i > 0 else 0.0
-                du = 0.0 if bus is None else ((bus[2] - u) / bus[0] - (i if on else 0.0)) / bus[1]
+                draws = on or clamp is not None   # (a clamp's off-times draw from the bus too)
+                du = 0.0 if bus is None else ((bus[2] - u) / bus[0] - (term if draws else 0.0)) / bus[1]
             if not free:
                 return [v_l / ind(x), 0.0, 0.0, du]
             di = (v_l - i * slope(x) * v) / ind(x)
@@ -79,10 +113,10 @@ def boosted_rhs(g: dict, boost: tuple, bus: tuple | None = None):
     return rhs
 
 
-def boosted_events(g: dict, trip: float):
+def boosted_events(g: dict, trip: float, loop=None):
     """solve_ivp's terminal events over ``y = (i, x, v, u)`` (:func:`boosted_rhs`): ``start``,
-    the force beats spring + load at the open stop; ``at_trip``, the current rises through
-    ``trip`` A."""
+    the force beats spring + load at the open stop; ``at_trip``, the current (given the
+    :func:`boosted_loop` ``loop``, the boost's terminal current) rises through ``trip`` A."""
     _, slope, opening = current_form(g)
     s = g["stroke"]
 
@@ -91,7 +125,7 @@ def boosted_events(g: dict, trip: float):
     start.terminal, start.direction = True, 1
 
     def at_trip(_t, y):
-        return y[0] - trip
+        return (y[0] if loop is None else loop("boost", y)[1]) - trip
     at_trip.terminal, at_trip.direction = True, 1
     return start, at_trip
 

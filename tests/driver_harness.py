@@ -256,3 +256,21 @@ def checked_rows(capture: Path, drive: Path | str, coil_temp: float) -> dict:
     assert r.returncode == 0, {n: (i["status"], i["detail"]) for n, i in rows.items()
                                if i["status"] not in ("pass", "info")}
     return rows
+
+
+def hot_nominal_loop_passes(tmp_path: Path, path: Path | str) -> None:
+    """The drive file ``path`` designed, its reference driver (gcc) in the loop with the
+    hottest coil at the nominal supply (:func:`loop_captures`, a 10 ms hold): no fault, and
+    ``check`` passes the pull-in, the peak, the hold and the release (lean: one corner;
+    plumbing, the device shares the model)."""
+    from coildrive.bench.messages import EventKind
+    from coildrive.config import load_drive
+    from coildrive.design import design
+
+    d = design(load_drive(path))
+    hot = max(c.coil_temp_c for c in d.corners)
+    (cap_path, cap), = loop_captures(tmp_path, d, [(d.drive.supply.nominal, hot, None)], hold_time=0.01)
+    assert int(EventKind.FAULT) not in [int(e.kind) for e in cap.events]
+    rows = checked_rows(cap_path, str(path), hot)
+    assert {n for n, i in rows.items() if i["status"] == "pass"} >= {
+        "pull_in_time", "peak_duration", "hold_mean", "release_time"}

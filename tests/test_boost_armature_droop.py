@@ -189,11 +189,9 @@ def test_design_follows_the_armature_onto_the_drooping_bus(tmp_path, thin):
     """``coildrive design --json`` (a real subprocess): seated at every corner, some within
     the peak and the rest in the hold on the drooping bus; the lowest bus is the armature
     runs' (named), after the hand-over at the runs' most current; a deeper droop (a
-    thinner cable) lowers the bus and delays no seat; a clamp stays refused in one line
-    (an eddy term: tests/test_boost_armature_droop_eddy.py)."""
-    from coildrive.config import load_drive
-    from coildrive.errors import InputError
-
+    thinner cable) lowers the bus and delays no seat (a clamp:
+    tests/test_boost_armature_droop_clamp.py; an eddy term:
+    tests/test_boost_armature_droop_eddy.py)."""
     d = designed_on_the_bus(_droop(tmp_path))
     a, s = d["armature"], d["supply"]
     checks = {c["name"]: c for c in d["checks"]}
@@ -201,10 +199,6 @@ def test_design_follows_the_armature_onto_the_drooping_bus(tmp_path, thin):
     t = thin.to_dict()
     assert t["supply"]["lowest_bus_v"] < s["lowest_bus_v"]
     assert t["armature"]["seat_time_s"] >= a["seat_time_s"]
-    with pytest.raises(InputError) as err:
-        load_drive(_droop(tmp_path, ('type = "diode"', 'type = "clamp"\nclamp_voltage = "60 V"')))
-    assert err.value.key == "freewheel.type" and "\n" not in str(err.value)
-    assert "drooping main supply, a moving armature and a clamp" in str(err.value)
 
 
 def flown_reference(g: dict, boost: tuple, bus: tuple, converter, stretches) -> tuple[float, float]:

@@ -64,8 +64,10 @@ def _params(tmp_path, rs, c, preload="0.6 N"):
     return d, params_from_loop(d.armature, lp, np.array([1.0]), bus=(rs, c))
 
 
-def reference(p, v_d, rs, c, i0, v0, sink=True) -> dict:
-    """solve_ivp (Radau) of the module docstring's equations: seated, free, (held open)."""
+def reference(p, v_d, rs, c, i0, v0, sink=True, drain=0.0) -> dict:
+    """solve_ivp (Radau) of the module docstring's equations: seated, free, (held open).
+    ``drain``: a constant current (A) something else draws off the bus throughout (a boost
+    converter recharging from it: ``C du/dt = (V_s - u)/R_s - drain + i``)."""
     from scipy.integrate import solve_ivp
 
     g = values(p)
@@ -77,7 +79,7 @@ def reference(p, v_d, rs, c, i0, v0, sink=True) -> dict:
         i = cur(lam, x) if lam > 0 else 0.0
         acc = 0.0 if held else (opening(x) - pull(lam) - g["damping"] * v) / g["mass"]
         return [-(u + 2 * v_d) - r * i if lam > 0 else 0.0, 0.0 if held else v, acc,
-                ((vs - u if sink else max(vs - u, 0.0)) / rs + i) / c, i, i * i, u * i,
+                ((vs - u if sink else max(vs - u, 0.0)) / rs - drain + i) / c, i, i * i, u * i,
                 0.0 if held else pull(lam) * v]
 
     tol = dict(method="Radau", rtol=1e-11, atol=1e-13)
@@ -95,7 +97,7 @@ def reference(p, v_d, rs, c, i0, v0, sink=True) -> dict:
         e.terminal = True
     unlatch.direction, zero.direction, opened.direction = -1, -1, 1
     s = solve_ivp(f, (0, 1), [i0 * g["l_closed"], 0, 0, v0, 0, 0, 0, 0], args=(True,), events=unlatch, **tol)
-    out = {"unlatch": s.t[-1], "high": max(s.y[3].max(), vs)}
+    out = {"unlatch": s.t[-1], "high": max(s.y[3].max(), vs - rs * drain)}   # (where it relaxes to)
     t, y = s.t[-1], s.y[:, -1].copy()
     while "open" not in out:
         events = [opened] if "zero" in out else [zero, opened]

@@ -381,3 +381,15 @@ def test_the_device_stream_passes_check_against_its_design(demo, tmp_path):
     bad = VirtualDevice(demo.drive, DeviceOptions(resistance_scale=1.4), design=demo)
     msgs, _ = run(bad, 0.3, step=0.05)
     assert not check_capture(capture_of(msgs, tmp_path / "bad.cdcap"), demo).ok
+
+
+def emulated_passes_check(d, tmp_path) -> None:
+    """The virtual device of the design ``d`` (1 code of noise, a 4 ms hold) runs two
+    actuations and their capture passes ``check`` (plumbing: the device shares the design's
+    physics)."""
+    from coildrive.bench.check import check_capture
+
+    dev = VirtualDevice(d.drive, DeviceOptions(noise_codes=1.0, seed=3, hold_time=0.004), design=d)
+    msgs, _ = run(dev, 0.05 + 2 * dev.period, step=0.05)
+    report = check_capture(capture_of(msgs, tmp_path / "c.cdcap"), d)
+    assert report.ok, [(i.name, i.status, i.detail) for i in report.items if i.status == "FAIL"]

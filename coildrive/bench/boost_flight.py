@@ -69,6 +69,8 @@ class BoostFlight:
         #: taken out at the hand-over: ``p_main``), else ``None``
         self._p_bus = (params_from_loop(drive.armature, hold, l_scale, r_e, bus=(s.source_resistance, s.capacitance))
                        if s.droops else None)
+        if self._p_bus is not None and drive.freewheel.type == "clamp":   # off-times drawing from the bus
+            self._p_bus = self._p_bus.clamped()
         self.p_main = None
         self.bus = float(hold.v_on)          # the main bus, V (the source's while not drawn)
         self.seat_bus: float | None = None   # V where the armature came to rest on the seat

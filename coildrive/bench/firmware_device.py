@@ -54,7 +54,8 @@ as the driver switches (:mod:`coildrive.bench.boost_flight`: the boost, the thre
 conversion, the hold's PWM edges) until it rests on the seat, then the seated coil's closed
 form; on a drooping main supply the flight carries the main bus from the hand-over (the
 converter's draw out of the source), which the supply conversions read until the seat; with
-an eddy term the conversions read the flight's terminal current.
+an eddy term the conversions read the flight's terminal current; on a full bridge the
+release into the bus then runs with the converter's draw out of the source too.
 
 A full bridge's mixed-decay hold (``hold.fast_fraction``): each off-time decays through
 the fast path (all four open) up to the timer count the driver gives through its
@@ -78,6 +79,7 @@ segments are those of the seated coil.
 from __future__ import annotations
 
 import ctypes
+import dataclasses
 import math
 from pathlib import Path
 
@@ -375,7 +377,17 @@ class FirmwareDevice(LineOutput):
             start = (p.flux_closed(np.array([max(i_m, 0.0)])), np.array([0.0]), np.array([0.0]))
             v0 = float(self.supply)
         v0 = min(v0, float(self.supply))
-        r = release(p, 0.0, v0, float(fast.v_off - fast.v_on), sink=self.drive.supply.sink, start=start, record=8)
+        drain = None
+        if self._arm is not None and self._arm.p_main is not None:
+            # after a boosted peak on the drooping main bus: the converter still drawing from it
+            # (as the flight and simulate take it: out of the source, or off a supply that
+            # cannot sink as a current)
+            if self.drive.supply.sink:
+                p = dataclasses.replace(p, v_on=self._arm.p_main.v_on)
+            else:
+                drain = (p.v_on - self._arm.p_main.v_on) / self.drive.supply.source_resistance
+        r = release(p, 0.0, v0, float(fast.v_off - fast.v_on), sink=self.drive.supply.sink, start=start, record=8,
+                    drain=drain)
         tt, y, i_t = r.path
         self._log.append(LogEntry(t, f"release into the bus from {float(p.current(start[0], start[1])[0]):.6g} A "
                                      f"at {v0:.6g} V: current stops after {1e3 * float(r.run.zero_time[0]):.6g} ms, "

@@ -111,30 +111,32 @@ def _end(drive: Drive, pb: ArmatureParams, pin: PullInBatch, i_trip: float):
     boost's voltage bounds the current over it (with an eddy term the magnetising current's
     rise through the loop's Thevenin pair, and the terminal current ``(V_b + R_e i_m)/(R +
     R_e)`` from it); the capacitor gives at most that current.
-    With a bouncing seat (``restitution``; no eddy term) a rebound's motional term drives the
+    With a bouncing seat (``restitution``) a rebound's motional term drives the
     current up past that rise: where the armature is in flight at the trip the window is
-    flown, bounces and all (:func:`~coildrive.model.armature_boost.window_flight`), to its
+    flown, bounces and all (:func:`~coildrive.model.armature_boost.window_flight`; with an
+    eddy term the branch's flight, its highest the terminal current's), to its
     end or until the armature rests at a stop, and the open coil's rise bounds only the rest
-    of it, from the current and the capacitor there; the most current is the larger of the
-    flight's highest and that rise's end.
+    of it, from the current (the magnetising current) and the capacitor there; the most
+    current is the larger of the flight's highest and that rise's end.
     Where the trip never comes: ``inf``, ``i_trip``, the boost's full voltage, NaN."""
     dt = conversion_period(drive)
     n = len(pb)
     hit = np.isfinite(pin.trip_time)
     y = np.where(hit, pin.trip_state, 0.0)
     rest, i_from, top = np.full(n, dt), np.full(n, float(i_trip)), np.zeros(n)
-    if pb.eddy is None and np.any(pb.restitution > 0):
+    flown = np.zeros(n, bool)
+    if np.any(pb.restitution > 0):
         flown, high, t_f, y_f = window_flight(pb, pin, dt)
         y = np.where(flown, y_f, y)
-        i_from = np.where(flown, pb.current(y_f[0], y_f[1]), i_from)
         rest = np.where(flown, np.maximum(np.where(hit, pin.trip_time, 0.0) + dt - t_f, 0.0), rest)
         top = np.where(flown, high, top)
     if pb.eddy is None:
+        i_from = np.where(flown, pb.current(y[0], y[1]), i_from)
         i_rise = rise_current(rest, i_from, pb.v_on, pb.r_on, pb.l_open)
-        i_end = np.maximum(i_rise, top)
     else:   # the magnetising current's bound (its Thevenin rise), then the terminal current's
-        i_m = rise_current(dt, pb.current(y[0], y[1]), pb.v_on, pb.r_on, pb.coil_open)
-        i_end = i_rise = np.maximum((pb.v_on + pb.eddy * i_m) / (pb.r_on + pb.eddy), i_trip)
+        i_m = rise_current(rest, pb.current(y[0], y[1]), pb.v_on, pb.r_on, pb.coil_open)
+        i_rise = np.maximum((pb.v_on + pb.eddy * i_m) / (pb.r_on + pb.eddy), i_trip)
+    i_end = np.maximum(i_rise, top)
     if pb.droops:
         u = y[5] - i_rise * rest / pb.capacitance
         y = np.concatenate([y[:5], u[None]])
@@ -180,26 +182,36 @@ def runs(drive: Drive, p: ArmatureParams, duty, period, i_top, thresholds: tuple
 
 
 def pwm_on_bus(drive: Drive) -> bool:
-    """Whether the hold after the hand-over is a fixed-duty PWM whose off-times draw nothing
-    from the bus (voltage mode, fixed or a supply table; no clamp across the switch): then
-    the drooping bus is run exactly (:func:`coildrive.design.supply.armature_bus`); else
-    :func:`coildrive.design.supply.handover_bus` takes its floor."""
-    return (drive.hold.mode == "voltage" and drive.hold.regulation != "closed_loop"
-            and drive.freewheel.type != "clamp")
+    """Whether the hold after the hand-over is a fixed-duty PWM (voltage mode, fixed or a
+    supply table): then the drooping bus is run exactly through the armature's flights, and
+    after the seat the seated coil's PWM exactly (:func:`coildrive.design.supply.armature_bus`)
+    or, with a clamp across the switch drawing in its off-times, under its floor
+    (:func:`coildrive.design.supply.armature_clamp_bus`); else
+    :func:`coildrive.design.supply.handover_bus` takes the floor from the hand-over on."""
+    return drive.hold.mode == "voltage" and drive.hold.regulation != "closed_loop"
+
+
+def clamp_draws(drive: Drive, p: ArmatureParams) -> ArmatureParams:
+    """``p`` (points on the drooping main bus, ``v_on`` the source's voltage) with the hold's
+    off-times through a clamp across the switch drawing from the bus
+    (:meth:`~coildrive.model.armature.ArmatureParams.clamped`) where the drive has one; else
+    ``p``."""
+    return p.clamped() if p.droops and drive.freewheel.type == "clamp" else p
 
 
 def main_bus(drive: Drive, p: ArmatureParams, i_top) -> tuple[ArmatureParams, np.ndarray]:
     """``(the hold's points, the bus at the hand-over V)``: on a drooping main supply the
     source behind ``R_s`` less the boost converter's draw from the hand-over on (a constant
     current, :func:`coildrive.design.supply.converter_current` with the coil at most
-    ``i_top`` A: ``V_s - R_s I_conv``), the bus starting at ``V_s``; on a stiff one ``p``
-    itself."""
+    ``i_top`` A: ``V_s - R_s I_conv``), the bus starting at ``V_s``, a clamp across the switch
+    drawing from it in the off-times (:func:`clamp_draws`); on a stiff one ``p`` itself."""
     if not p.droops:
         return p, p.v_on
     from .supply import converter_current
 
     i_conv = converter_current(drive, p.v_on, np.where(np.isfinite(i_top), i_top, 0.0))
-    return replace(p, v_on=p.v_on - drive.supply.source_resistance * i_conv), p.v_on.copy()
+    return (replace(clamp_draws(drive, p), v_on=p.v_on - drive.supply.source_resistance * i_conv),
+            p.v_on.copy())
 
 
 def peak_heat(drive: Drive, lp, peak_time) -> np.ndarray:
@@ -391,8 +403,9 @@ def loop_pull_in(drive: Drive, res, loop, counts: int, reading, switch_leg: bool
     i_th, code, _ = threshold(drive)
     period = np.ravel(np.broadcast_to(np.asarray(res.hold.period, float), (len(arm.params),)))[late]
     mixed = _mixed(res.loop)
-    got = boosted_pull_in(boosted_params(drive, p, False), p, i_th, control.first(code), period, runs_.window,
-                          rtol=1e-7, control=control, mixed=None if mixed is None else mixed.at(late))
+    got = boosted_pull_in(boosted_params(drive, p, False), clamp_draws(drive, p), i_th, control.first(code), period,
+                          runs_.window, rtol=1e-7, control=control,
+                          mixed=None if mixed is None else mixed.at(late))
     fields = ("status", "seat_time", "seat_current", "impact_time", "impact_speed", "dip_current",
               "dip_time", "stall_gap", "bound", "bounces", "steps")
     merged = {}

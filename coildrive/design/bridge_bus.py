@@ -294,7 +294,8 @@ def _armature_decays(drive: Drive, res, event: str, i0, peak_time, peak_end) -> 
     worst of :data:`BRIDGE_STARTS` starting buses over :func:`bus_range`, its floor the
     pull-in's lowest bus too): the end of the hold's the design's run already
     (``res.armature.bus_release``). One :class:`~coildrive.model.bus_decay.FastDecay`
-    of those worst figures (``drop_time``: the time to the open stop)."""
+    of those worst figures (``drop_time``: the time to the open stop). After a boosted peak
+    the boost converter may be idle or drawing its most (:func:`converter_draw`): both."""
     from ..model.armature_bus_release import release_over
 
     arm = res.armature
@@ -307,8 +308,10 @@ def _armature_decays(drive: Drive, res, event: str, i0, peak_time, peak_end) -> 
         lo = np.minimum(lo, np.reshape(arm.pull_in.lowest_bus, shape))
         p = dataclasses.replace(arm.params, r_off=np.ravel(np.broadcast_to(lp.r_off, shape)).astype(float),
                                 v_off=np.ravel(np.broadcast_to(lp.v_off, shape)).astype(float))
+        i_conv = converter_draw(drive, res, peak_end)
         r = release_over(p, np.ravel(i0), np.ravel(lo), np.ravel(hi), 2.0 * np.ravel(np.broadcast_to(
-            np.asarray(lp.diode(drive), float), shape)), BRIDGE_STARTS, sink=drive.supply.sink)
+            np.asarray(lp.diode(drive), float), shape)), BRIDGE_STARTS, sink=drive.supply.sink,
+            drains=() if i_conv is None else (np.ravel(i_conv),))
     b = r.run
     figures = (b.open_time, b.zero_time, r.highest_bus, r.highest_bus, r.highest_bus_time, r.bus_at_zero,
                b.charge)

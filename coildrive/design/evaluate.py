@@ -237,7 +237,13 @@ def _release_on_bus(drive: Drive, flat_rel: Loop, l_factor, shape, pin, i_max, m
     larger of the terminal top and the magnetising one, as
     :func:`coildrive.design.bridge_bus.bus_range`; on one that cannot the starts stop at
     the source and the highest bus is bounded by energy,
-    :func:`coildrive.design.bridge_bus.no_sink_top`)."""
+    :func:`coildrive.design.bridge_bus.no_sink_top`). After a boosted peak
+    (its pull-in the boost's runs, the lowest bus theirs on the main bus) the boost
+    converter recharges from the main bus from the hand-over on: it may be idle or drawing
+    its most at the turn-off (:func:`coildrive.design.supply.converter_current` with the coil
+    at most that top, as :func:`coildrive.design.bridge_bus.converter_draw` takes it), so
+    the floor takes its draw too and the release runs with it idle and drawing (``drains``;
+    config refuses a mixed-decay hold with it)."""
     from ..model.armature import params_from_loop
     from ..model.armature_bus_release import release_over
     from ..model.bus_decay import STARTS, mixed_hold_rise
@@ -253,15 +259,20 @@ def _release_on_bus(drive: Drive, flat_rel: Loop, l_factor, shape, pin, i_max, m
     if p_bus.eddy is not None:   # the bus feeds the terminal current: at most (V_s + R_e i_m)/(R + R_e)
         from ..model.eddy import terminal
         top = terminal(top, v_s, p_bus.r_on, p_bus.eddy)
+    drains = ()
+    if s.boosted and s.converter_draw > 0:
+        from .supply import converter_current
+
+        drains = (converter_current(drive, v_s, top),)
     low = np.where(np.isfinite(pin.lowest_bus), pin.lowest_bus, v_s)
-    lowest = np.maximum(np.minimum(low, bus_floor(v_s, s.source_resistance, top)), -v_d2)
+    lowest = np.maximum(np.minimum(low, bus_floor(v_s, s.source_resistance, top + sum(drains))), -v_d2)
     highest = v_s
     if mixed is not None and s.sink:
         fraction, period = mixed
         highest = v_s + mixed_hold_rise(s.source_resistance, s.capacitance, np.maximum(top, top_m),
                                         fraction * period, period)
     return release_over(p_bus, np.where(np.isfinite(i_max), i_max, 0.0), lowest, highest, v_d2, STARTS,
-                        sink=s.sink)
+                        sink=s.sink, drains=drains)
 
 
 def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,

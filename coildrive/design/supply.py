@@ -99,6 +99,13 @@ HANDOVER_ARMATURE = ("the armature's runs from the hand-over on the drooping bus
                      "until its orbit repeats; the lower of the pull-in's (the earliest hand-over) and "
                      "the most current's (where an orbit has not repeated within 5000 periods, the "
                      "floor below)")
+#: ... with a moving armature and a clamp across the switch, whose off-times draw from the bus.
+HANDOVER_ARMATURE_CLAMP = ("the armature's runs from the hand-over on the drooping bus, its capacitor a "
+                           "state of the flight (the clamp's off-times drawing from it) until the seat, "
+                           "the lower of the pull-in's and the most current's; from the seat on a floor: "
+                           "the source through R_s carries every draw (the coil at most the largest of "
+                           "the hand-over current, the hold's top and its first on-time on a stiff bus "
+                           "from the larger of the hand-over and the seat's current; the boost converter)")
 #: ... where the hold's switching is not a fixed PWM, or a clamp draws in its off-times.
 HANDOVER_FLOOR = ("a floor: the source through R_s carries every draw from the hand-over on "
                   "(the coil at most the largest of the hand-over current, its first on-time "
@@ -132,6 +139,37 @@ def armature_bus(runs) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     lower = b.lowest_bus < a.lowest_bus
     return (np.where(lower, b.lowest_bus, a.lowest_bus), np.where(lower, b.lowest_bus_time, a.lowest_bus_time),
             a.bus_settled & b.bus_settled)
+
+
+def armature_clamp_bus(drive: Drive, lp, runs, top, duty, period) -> tuple[np.ndarray, np.ndarray]:
+    """``(lowest main bus V, when s from switch-on)`` per point after a moving armature's
+    boosted peak (its runs, :class:`~coildrive.design.boost_armature.BoostRuns`) on a
+    drooping main supply under a fixed-duty PWM hold whose off-times draw from the bus
+    through a clamp across the switch: the lower of the pull-in run's and the most-current
+    run's flights from the hand-over to the seat (the bus a state of the flight, the clamp's
+    draw in it: exact), and from the seat on a floor (:func:`coildrive.model.supply.bus_floor`:
+    the source through ``R_s`` carrying every draw, the coil at most the largest of ``top``
+    A -- the hand-over current and the hold's top -- and the seated coil's first on-time on a
+    stiff bus from the larger of the hand-over current and the seat's,
+    :func:`_first_on_top`, whose argument holds from a seat inside a period too: the rest of
+    that period's on-time lies under a whole one, and the next period starts no higher than
+    the period map of the seat's current; plus the boost converter at that top). A bus below
+    the floor at the seat only recovers towards it, so the lower of the two bounds the bus
+    from the seat on. ``lp``: the loop at the points; ``duty``, ``period`` s: the hold's."""
+    shape = np.shape(lp.v_on)
+    slow, most = runs.slow, runs.most
+    i_seat = np.fmax(slow.seat_current, most.seat_current).reshape(shape)
+    i_hand = runs.end_current.reshape(shape)
+    top = np.maximum(top, _first_on_top(drive, lp, np.fmax(i_hand, i_seat), duty, period))
+    i_conv = converter_current(drive, lp.v_on, top)
+    floor = bus_model.bus_floor(lp.v_on, drive.supply.source_resistance, top + i_conv)
+    lower = most.lowest_bus < slow.lowest_bus
+    v_fl = np.where(lower, most.lowest_bus, slow.lowest_bus).reshape(shape)
+    t_fl = np.where(lower, most.lowest_bus_time, slow.lowest_bus_time).reshape(shape)
+    seat = slow.seat_time.reshape(shape)   # (the floor's moment: the seat, or the hand-over)
+    t_floor = np.where(np.isfinite(seat), np.maximum(seat, slow.trip_time.reshape(shape)), t_fl)
+    below = floor < v_fl
+    return np.where(below, floor, v_fl), np.where(below, t_floor, t_fl)
 
 
 def _pwm_hold(drive: Drive) -> bool:
@@ -225,6 +263,9 @@ def handover_bus(drive: Drive, res, duty, first_duty=None) -> tuple[np.ndarray, 
     ind, r_e = lp.inductance, None
     if isinstance(ind, EddyCoil):
         ind, r_e = ind.magnetising, ind.resistance
+    if runs is not None and pwm and through_clamp(drive):
+        v_low, when = armature_clamp_bus(drive, lp, runs, top, duty, res.hold.period)
+        return v_low, when, i_hand, HANDOVER_ARMATURE_CLAMP
     if not pwm or through_clamp(drive) or lp.mixed is not None:
         return np.minimum(floor, lp.v_on), t_hand, i_hand, HANDOVER_FLOOR
     if isinstance(ind, FluxCoil):

@@ -120,6 +120,12 @@ class ArmatureParams:
     #: terminal current (:meth:`terminal`) is what the loop, the freewheel and ``q``,
     #: ``sq`` carry.
     eddy: np.ndarray | None = None
+    #: A clamp across the switch on the drooping bus (``droops``): its voltage, V per
+    #: point. Switched off, the coil's current flows on from the bus through the clamp, the
+    #: coil seeing ``u - V_clamp`` (``u`` the bus, which feeds it) in place of ``-V_off``,
+    #: until it reaches zero (:meth:`clamped`); ``None``: the off-times draw nothing from the
+    #: bus (a path across the coil).
+    clamp: np.ndarray | None = None
 
     @staticmethod
     def make(curves: "GapCurves | None" = None, eddy=None, **values) -> "ArmatureParams":
@@ -128,7 +134,7 @@ class ArmatureParams:
         ``source_resistance`` and ``capacitance`` default to 0: a stiff bus)."""
         values = {"source_resistance": 0.0, "capacitance": 0.0, **values}
         names = [f.name for f in ArmatureParams.__dataclass_fields__.values()
-                 if f.name not in ("curves", "eddy")]
+                 if f.name not in ("curves", "eddy", "clamp")]
         unknown = set(values) - set(names)
         if unknown:
             raise TypeError(f"unknown armature parameter(s): {', '.join(sorted(unknown))}")
@@ -141,8 +147,8 @@ class ArmatureParams:
 
     @property
     def arrays(self) -> tuple[str, ...]:
-        """The names of the per-point array fields (all but ``curves`` and ``eddy``)."""
-        return tuple(n for n in self.__dataclass_fields__ if n not in ("curves", "eddy"))
+        """The names of the per-point array fields (all but ``curves``, ``eddy`` and ``clamp``)."""
+        return tuple(n for n in self.__dataclass_fields__ if n not in ("curves", "eddy", "clamp"))
 
     def __len__(self) -> int:
         return self.v_on.size
@@ -153,16 +159,23 @@ class ArmatureParams:
         if (a is None) != (b is None) or (a is not None and not (
                 a.open is b.open and a.seated is b.seated and np.array_equal(a.scale, b.scale))):
             return False
-        if (self.eddy is None) != (other.eddy is None) or (
-                self.eddy is not None and not np.array_equal(self.eddy, other.eddy)):
-            return False
+        for a, b in ((self.eddy, other.eddy), (self.clamp, other.clamp)):
+            if (a is None) != (b is None) or (a is not None and not np.array_equal(a, b)):
+                return False
         return all(np.array_equal(getattr(self, f), getattr(other, f)) for f in self.arrays)
 
     def take(self, k) -> "ArmatureParams":
         """The parameters of point(s) ``k`` (an index, slice or mask)."""
         return ArmatureParams(**{n: np.atleast_1d(getattr(self, n)[k]) for n in self.arrays},
                               curves=None if self.curves is None else self.curves[k],
-                              eddy=None if self.eddy is None else np.atleast_1d(self.eddy[k]))
+                              eddy=None if self.eddy is None else np.atleast_1d(self.eddy[k]),
+                              clamp=None if self.clamp is None else np.atleast_1d(self.clamp[k]))
+
+    def clamped(self) -> "ArmatureParams":
+        """These points (on the drooping bus) with their off-times through a clamp across the
+        switch, drawing from the bus: ``clamp = v_on + v_off`` (a clamp's ``V_off = V_clamp -
+        V_bus``, :mod:`coildrive.model.circuit`, with ``v_on`` the bus it was taken at)."""
+        return dataclasses.replace(self, clamp=self.v_on + self.v_off)
 
     @property
     def droops(self) -> bool:
@@ -212,11 +225,14 @@ class ArmatureParams:
         while the freewheel conducts and 0 once that would be negative (the path
         blocks). Without an eddy term the coil's current itself (0 or more).
         ``r_off``/``v_off``: another freewheel path's (split decay's fast path);
-        ``bus``: on a drooping bus the capacitor's voltage V in place of ``V_on``."""
+        ``bus``: on a drooping bus the capacitor's voltage V in place of ``V_on`` (and with a
+        clamp across the switch, :attr:`clamp`, off ``V_off = V_clamp - bus``)."""
         i_m = np.asarray(i_m, float)
         if self.eddy is None:
             return np.maximum(i_m, 0.0)
         r_off = self.r_off if r_off is None else r_off
+        if v_off is None and self.clamp is not None and bus is not None:
+            v_off = self.clamp - np.asarray(bus, float)
         v_off = self.v_off if v_off is None else v_off
         re_ = self.eddy
         v_on = self.v_on if bus is None else np.asarray(bus, float)

@@ -131,7 +131,10 @@ def boosted_pull_in(p_boost: ArmatureParams, p_hold: ArmatureParams, trip, duty,
     until ``until`` where the armature is not seated by then (module docstring). Where the
     threshold never comes the main bus is not drawn: ``bus0`` itself, at 0 s.
     ``orbit`` False: the lowest bus only up to the seat (``bus_settled`` ``None``;
-    :func:`with_orbit` completes it), for runs that need the seat alone.
+    :func:`with_orbit` completes it), for runs that need the seat alone. With a clamp across
+    the switch (``p_hold.clamp``: its off-times draw from the bus, in the flight) the seated
+    coil's PWM has no closed form here: the lowest bus is up to the seat whatever ``orbit``
+    says (the design bounds the rest by a floor, :func:`coildrive.design.supply.armature_clamp_bus`).
 
     ``control``: a hold whose duty the firmware sets period by period from a conversion
     (a closed loop), else ``None`` (``duty`` throughout). It has ``sample(duty)`` (the
@@ -175,7 +178,7 @@ def boosted_pull_in(p_boost: ArmatureParams, p_hold: ArmatureParams, trip, duty,
     if not droop:
         return dataclasses.replace(pin, **out)
     run = dataclasses.replace(pin, **out, lowest_bus=low[0], lowest_bus_time=low[1], seat_bus=seat_bus)
-    return with_orbit(p_hold, run, duty, period) if orbit else run
+    return with_orbit(p_hold, run, duty, period) if orbit and p_hold.clamp is None else run
 
 
 def with_orbit(p_hold: ArmatureParams, run: PullInBatch, duty, period) -> PullInBatch:
@@ -417,16 +420,26 @@ def window_flight(p: ArmatureParams, pin: PullInBatch, dt: float, rtol: float = 
     the window ends. With a bouncing seat (``restitution``) the rebound's motional term
     drives the current up, so no closed-form bound holds over the window while the armature
     may move away from the seat; at rest, or closing, the open coil's rise bounds the rest.
+    With an eddy term (``p.eddy``) the flight is the branch's behind the loop's Thevenin pair
+    and the highest is the terminal current's, what the sense sees (switched on, ``(V + R_e
+    i_m)/(R + R_e)``, ``V`` the boost capacitor's voltage: on an ideal boost it rises with
+    the magnetising current ``i_m``, whose highest is tracked and converted).
 
     Returns ``(flown, highest A, t s, y)`` per point: where flown, the highest coil current
-    over the flight (at its accepted steps and its end) and the time and state (rows of the
-    run) where it stopped (the window's end, or a rest); elsewhere the trip's."""
+    (terminal current) over the flight (at its accepted steps and its end) and the time and
+    state (rows of the run) where it stopped (the window's end, or a rest); elsewhere the
+    trip's."""
     n = len(p)
     hit = np.isfinite(pin.trip_time)
     t = np.where(hit, pin.trip_time, 0.0)
     y = np.where(hit, pin.trip_state, 0.0)
     flown = hit & (pin.status == TRIPPED) & (y[2] != 0.0)
-    i_now = p.current(y[0], y[1])
+    # (the flight tracks the terminal current itself where it depends on the capacitor,
+    # else the magnetising current, converted at the end)
+    sensed = p.droops and p.eddy is not None
+    current = ((lambda z: p.terminal(p.current(z[0], z[1]), True, bus=z[5])) if sensed
+               else (lambda z: p.current(z[0], z[1])))
+    i_now = current(y)
     peak = np.stack([i_now, t])
     t_end = t + dt
     active = flown.copy()
@@ -450,7 +463,10 @@ def window_flight(p: ArmatureParams, pin: PullInBatch, dt: float, rtol: float = 
         y[2] = np.where(bounce, rebound, np.where(seat | opn, 0.0, y[2]))
         lifts = seat & ~bounce & (y[0] < lam_stay)   # (too little flux to stay: flies on)
         active &= bounce | lifts
-    return flown, np.maximum(peak[0], p.current(y[0], y[1])), t, y
+    high = np.maximum(peak[0], current(y))
+    if p.eddy is not None and not sensed:
+        high = p.terminal(high, True)
+    return flown, high, t, y
 
 
 def seated_on(p: ArmatureParams, y, dt) -> np.ndarray:

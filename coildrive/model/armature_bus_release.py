@@ -49,7 +49,7 @@ Units: SI throughout (V, A, ohm, H, m, kg, N, s, F).
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -83,7 +83,7 @@ class BusRelease:
 
 def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
             max_rounds: int = 4 * MAX_BOUNCES, sink: bool = True, start=None,
-            record: int = 0) -> BusRelease:
+            record: int = 0, drain=None) -> BusRelease:
     """Turn off at t = 0 with the armature seated, ``i_off`` A flowing and the bus at
     ``v0`` V (at most the source's ``p.v_on``); ``v_diodes`` V the two body diodes'
     drop ``2 V_d``. ``p``: the release loop's points on the drooping bus (``p.droops``;
@@ -92,7 +92,9 @@ def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
     that cannot sink (module docstring). ``start``: ``(lambda Wb, x m, v m/s)`` per point
     in place of the seated coil at ``i_off`` (an armature caught off the seat by the
     turn-off flies from there; ``i_off`` unused). ``record``: samples per integrator step
-    of the run (one point: ``path``, the steps' cubic Hermite interpolants); 0, none."""
+    of the run (one point: ``path``, the steps' cubic Hermite interpolants); 0, none.
+    ``drain``: A per point drawn off the bus besides throughout (a boost converter recharging
+    from it; :class:`~coildrive.model.armature_flight._Rhs`), or ``None``."""
     if not p.droops:
         raise ValueError("the bridge's release on the drooping bus: R_s > 0")
     n = len(p)
@@ -127,7 +129,7 @@ def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
 
     def fly(t, y, t_end, active, live, **kw):
         fl = fly_mixed(p, t, y, t_end, active, off, live, stiff, rtol, returns=v_d2, high=high, sink=sink,
-                       record=bool(record), **kw)
+                       record=bool(record), drain=drain, **kw)
         if record:
             pieces.append((fl, live.copy(), kw.get("held")))
         return fl
@@ -190,11 +192,11 @@ def release(p: ArmatureParams, i_off, v0, v_diodes, rtol: float = 1e-7,
         block = (bus_zero + v_d2) / p.eddy
     return BusRelease(run=run, highest_bus=np.where(above, high[0], v_s),
                       highest_bus_time=np.where(above, high[1], np.inf), bus_at_zero=bus_zero,
-                      path=None if not record else _path(p, pieces, v_d2, sink, record),
+                      path=None if not record else _path(p, pieces, v_d2, sink, record, drain),
                       eddy_energy=eddy_energy, block_current=block)
 
 
-def _path(p: ArmatureParams, pieces, v_d2, sink: bool, dense: int) -> tuple:
+def _path(p: ArmatureParams, pieces, v_d2, sink: bool, dense: int, drain=None) -> tuple:
     """One point's run as samples (:class:`BusRelease`'s ``path``) from its flights'
     accepted steps (``pieces``: each flight, its ``live`` and ``held``), ``dense`` samples a
     step on each step's cubic Hermite interpolant (the slopes the run's right-hand side)."""
@@ -208,7 +210,7 @@ def _path(p: ArmatureParams, pieces, v_d2, sink: bool, dense: int) -> tuple:
         t, y = t[keep], y[:, keep]
         if t.size < 2:
             continue
-        rhs = _Rhs(p, np.zeros(1, bool), live, held, v_d2, sink)
+        rhs = _Rhs(p, np.zeros(1, bool), live, held, v_d2, sink, drain)
         d = rhs(y)
         h = np.diff(t)
         theta = (np.arange(1, dense + 1) / dense)[:, None]
@@ -230,20 +232,36 @@ def _path(p: ArmatureParams, pieces, v_d2, sink: bool, dense: int) -> tuple:
 
 
 def release_over(p: ArmatureParams, i_off, lowest, highest, v_diodes, starts: int,
-                 rtol: float = 1e-7, sink: bool = True) -> BusRelease:
+                 rtol: float = 1e-7, sink: bool = True, drains=()) -> BusRelease:
     """:func:`release` from ``starts`` starting buses evenly over ``[lowest, highest]`` V
     per point (the range the bus can be in at the turn-off), all in one batch; per point
     each figure the worst over the starts: the latest unlatch, open stop and zero current,
     the most charge and ``int i^2 dt``, the highest bus (its time and the bus at zero
     current from the start that gives it); a point that fails to open from any start
     fails (``NOT_OPEN``, its gap from that start); with an eddy term the most eddy loss and
-    the highest block current."""
+    the highest block current.
+
+    ``drains``: constant currents (A per point) something else draws off the bus during the
+    release -- a boost converter recharging from it -- each run from every start too, the
+    worst over them all (and the bus with nothing drawn): a supply that sinks behind ``R_s``
+    with ``I`` drawn off its bus is the source ``V_s - R_s I`` (Thevenin: ``C du/dt = (V_s -
+    u)/R_s - I + i = (V_s - R_s I - u)/R_s + i``, exact); one that cannot sink (its feed
+    ``max(V_s - u, 0)/R_s``) has no such source: the run's ``drain``."""
     n = len(p)
     lo, hi = (np.broadcast_to(np.asarray(a, float), (n,)) for a in (lowest, highest))
-    v0 = np.concatenate([lo + (hi - lo) * k / max(starts - 1, 1) for k in range(starts)])
+    drawn = [np.zeros(n)] + [np.broadcast_to(np.asarray(d, float), (n,)) for d in drains]
+    v0 = np.concatenate([lo + (hi - lo) * k / max(starts - 1, 1) for k in range(starts)] * len(drawn))
+    each = starts
+    starts = starts * len(drawn)
     idx = np.tile(np.arange(n), starts)
-    r = release(p.take(idx), np.tile(np.broadcast_to(np.asarray(i_off, float), (n,)), starts), v0,
-                np.tile(np.broadcast_to(np.asarray(v_diodes, float), (n,)), starts), rtol, sink=sink)
+    q = p.take(idx)
+    drain = None
+    if drains and sink:
+        q = replace(q, v_on=np.concatenate([np.tile(p.v_on - p.source_resistance * d, each) for d in drawn]))
+    elif drains:
+        drain = np.concatenate([np.tile(d, each) for d in drawn])
+    r = release(q, np.tile(np.broadcast_to(np.asarray(i_off, float), (n,)), starts), v0,
+                np.tile(np.broadcast_to(np.asarray(v_diodes, float), (n,)), starts), rtol, sink=sink, drain=drain)
     b = r.run
 
     def worst(a):

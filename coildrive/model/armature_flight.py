@@ -72,6 +72,17 @@ class _Rhs:
         C du/dt    = (V_s - u)/R_s + i           (a supply that cannot sink, ``sink`` False:
                                                  max(V_s - u, 0)/R_s, its feed one-way)
 
+    ``drain`` (A per point): a constant current something else draws off the bus besides
+    (a boost converter recharging from it), ``- drain`` in ``C du/dt``: on a supply that
+    cannot sink, where no Thevenin source takes its place.
+
+    A clamp across the switch on the drooping bus (``p.clamp``, ``V_c`` V per point) draws
+    from it instead, switched off, while the current flows (the same pair of rows with the
+    bus's sign turned)::
+
+        dlambda/dt = u - V_c - R_off i
+        C du/dt    = (V_s - u)/R_s - i
+
     With an eddy term (``p.eddy``, the resistance ``R_e`` across the magnetising branch)
     ``i`` is the branch's current and the branch sees the loop's Thevenin pair: switched on
     ``dlambda/dt = k (u - R_on i)`` with ``k = R_e/(R_on + R_e)``, and the bus feeds the
@@ -87,19 +98,25 @@ class _Rhs:
     """
 
     def __init__(self, p: ArmatureParams, on: np.ndarray, live: np.ndarray, held: np.ndarray | None = None,
-                 returns: np.ndarray | None = None, sink: bool = True):
+                 returns: np.ndarray | None = None, sink: bool = True, drain: np.ndarray | None = None):
         self.curves = p.curves
         #: 1 where switched off into the drooping bus (a bridge's fast decay), else 0
         self.back = None
-        if returns is not None:
+        clamp = p.clamp if returns is None and p.droops else None
+        if returns is not None or clamp is not None:
             if not p.droops:
                 raise ValueError("returns: a full bridge's fast decay into a drooping bus")
             self.back = (~on).astype(float)
-            self.v_d2 = np.broadcast_to(np.asarray(returns, float), on.shape)
-            #: the share of ``-(u + 2 V_d)`` the flux sees returning (1; an eddy term's k, 0 blocked)
+            #: the bus's sign in the off-times' drive ``sign (u + v_d2)``: -1 returned into it
+            #: (``-(u + 2 V_d)``), +1 drawn through a clamp (``u - V_c``: ``v_d2 = -V_c``)
+            self.sign = -1.0 if returns is not None else 1.0
+            self.v_d2 = np.broadcast_to(np.asarray(returns if returns is not None else -clamp, float), on.shape)
+            #: the share of ``sign (u + v_d2)`` the flux sees (1; an eddy term's k, 0 blocked)
             self.k_back = self.back
         #: False: the source feeds the bus only while it is below V_s (an ideal feed diode)
         self.sink = sink
+        #: A drawn off the bus besides the coil (see the class docstring), or None
+        self.drain = drain
         #: 0 where the armature is held at its stop (``x``, ``v`` frozen: a resting stretch), else 1
         self.free = 1.0 if held is None else 1.0 - held.astype(float)
         self.inv_m = 1.0 / p.mass
@@ -130,11 +147,11 @@ class _Rhs:
                 self.k_on = re_ / c
                 self.tu = np.where(on, 1.0 / c, 0.0)
                 self.t0 = np.where(on, 0.0, self.t0)
-            if self.back is not None:   # returned into the bus: -(u + 2 V_d) in V_off's place
-                back = (self.back > 0) & ~blocked
+            if self.back is not None:   # returned into the bus (or drawn through a clamp):
+                back = (self.back > 0) & ~blocked   # sign (u + v_d2) in -V_off's place
                 self.k_back = np.where(back, re_ / c, 0.0)
-                self.tu = np.where(back, -1.0 / c, self.tu)
-                self.t0 = np.where(back, -self.v_d2 / c, self.t0)
+                self.tu = np.where(back, self.sign / c, self.tu)
+                self.t0 = np.where(back, self.sign * self.v_d2 / c, self.t0)
         self.r_e = p.eddy
         self.f0 = (p.preload + p.rate * p.stroke + p.load) / p.mass
         self.km = p.rate / p.mass
@@ -178,8 +195,8 @@ class _Rhs:
         jac[:, 4, 0] = 2.0 * i * di_dl
         jac[:, 4, 1] = 2.0 * i * di_dx
         if self.droop:
-            feed = self.on if self.back is None else self.on - self.back * self.live
-            jac[:, 0, 5] = self.live * (self.on * self.k_on - (0.0 if self.back is None else self.k_back))
+            feed = self.on if self.back is None else self.on + self.sign * self.back * self.live
+            jac[:, 0, 5] = self.live * (self.on * self.k_on + (0.0 if self.back is None else self.sign * self.k_back))
             jac[:, 5, 0] = -feed * self.inv_c * di_dl
             jac[:, 5, 1] = -feed * self.inv_c * di_dx
             jac[:, 5, 5] = -self.g_s if self.sink else -self.g_s * (y[5] < self.v_s)
@@ -244,7 +261,7 @@ class _Rhs:
         if self.droop:
             drive_v = np.where(self.on > 0, self.k_on * u, self.drive_v)
             if self.back is not None:
-                drive_v = np.where(self.back > 0, -self.k_back * (u + self.v_d2), drive_v)
+                drive_v = np.where(self.back > 0, self.sign * self.k_back * (u + self.v_d2), drive_v)
             out[0] = self.live * (drive_v - self.drive_r * i)
         else:
             out[0] = self.live * (self.drive_v - self.drive_r * i)
@@ -255,9 +272,11 @@ class _Rhs:
         if y.shape[0] > 6:   # the eddy resistance's loss
             out[6] = self.r_e * (i_m - i) ** 2
         if self.droop:
-            feed = self.on if self.back is None else self.on - self.back * self.live
+            feed = self.on if self.back is None else self.on + self.sign * self.back * self.live
             fed = self.v_s - u if self.sink else np.maximum(self.v_s - u, 0.0)
             out[5] = self.g_s * fed - feed * self.inv_c * i
+            if self.drain is not None:
+                out[5] = out[5] - self.drain * self.inv_c
         out[3] = i
         out[4] = i * i
         return out
@@ -365,7 +384,7 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
         low_until: np.ndarray | None = None, held: np.ndarray | None = None,
         flux_to: np.ndarray | None = None, current_to: np.ndarray | None = None,
         flux_down: np.ndarray | None = None, returns: np.ndarray | None = None,
-        high: np.ndarray | None = None, sink: bool = True) -> Flight:
+        high: np.ndarray | None = None, sink: bool = True, drain: np.ndarray | None = None) -> Flight:
     """Integrate the free armature of every ``active`` point from ``t`` until a stop, the
     current reaching zero (switch off), or ``t_end``.
 
@@ -400,7 +419,8 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
     returns : V per point, a full bridge's two body diodes ``2 V_d``: switched off, the
     current returns into the drooping bus (:class:`_Rhs`); high : then the running
     highest capacitor voltage and its time (2 x N: V, s), as ``low``; sink : False, a
-    supply that cannot sink (its feed one-way: ``max(V_s - u, 0)/R_s``)
+    supply that cannot sink (its feed one-way: ``max(V_s - u, 0)/R_s``); drain : A per point
+    drawn off the bus besides (:class:`_Rhs`)
 
     A batch of one point goes through :func:`fly_point` (Python floats: numpy's per-call
     overhead on 1-element arrays would dominate; same algorithm and results; the coil's
@@ -420,7 +440,7 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
     active = active.copy() & (t < t_end)
     end = np.where(active, RUNNING, BOUND)
     steps = np.zeros(n, int)
-    rhs = _Rhs(p, on, live, held, returns, sink)
+    rhs = _Rhs(p, on, live, held, returns, sink, drain)
     free = np.ones(n, bool) if held is None else ~held
     target = np.full(n, np.inf) if flux_to is None else np.broadcast_to(flux_to, (n,))
     floor = None if flux_down is None else np.broadcast_to(flux_down, (n,))

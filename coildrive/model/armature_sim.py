@@ -162,6 +162,8 @@ def _rest_segment(run: _Run, t_end: float, on: bool, points: int, stop, rtol: fl
     pt = run.pt
     if pt.droop and on and pt.p.curves is not None:
         return _rest_held(run, t_end, rtol)
+    if pt.droop and not on and pt.p.clamp is not None and (run.live or pt.eddy is not None):
+        return _rest_clamped(run, t_end, rtol)
     if pt.droop:
         return _rest_segment_droop(run, t_end, on, points, stop)
     seated = run.state == "seated"
@@ -270,20 +272,70 @@ def _rest_held(run: _Run, t_end: float, rtol: float) -> None:
         run.state = "free"
         run.mark("move")
         return
-    yes = np.array([True])
-    fl = fly(pt.p, np.array([run.t]), run.y[:, None], np.array([t_end]), yes, yes, yes, rtol,
-             record=True, stiff=pt.stiff, held=yes, flux_to=np.array([math.inf if seated else pt.lam_start]))
-    ts = np.array([a[0] for a in fl.path_t[1:]])
-    ys = np.array([a[:, 0] for a in fl.path_y[1:]]).T if len(fl.path_y) > 1 else np.zeros((pt.rows, 0))
-    keep = np.isfinite(ts)
-    if keep.any():
-        run.emit(ts[keep], ys[:, keep], True)
-    run.t = float(fl.t[0])
-    run.y = fl.y[:, 0].copy()
+    fl = _held_flight(run, t_end, True, rtol, flux_to=np.array([math.inf if seated else pt.lam_start]))
     if int(fl.end[0]) == START:
         run.y[0] = pt.lam_start * (1.0 + 1e-12)
         run.state = "free"
         run.mark("move")
+
+
+def _held_flight(run: _Run, t_end: float, on: bool, rtol: float, live: bool = True, **stop):
+    """The flight integrator (``fly(held=...)``) over a resting stretch of ``run`` switched
+    ``on`` (or off; ``live`` False: the path blocked) until ``t_end`` or a ``stop`` of
+    :func:`~coildrive.model.armature_flight.fly` (``flux_to``, ``flux_down``), its accepted
+    steps emitted and ``run`` moved to its end; returns the flight."""
+    pt = run.pt
+    yes = np.array([True])
+    fl = fly(pt.p, np.array([run.t]), run.y[:, None], np.array([t_end]), yes, np.array([on]),
+             np.array([live]), rtol, record=True, stiff=pt.stiff, held=yes, **stop)
+    ts = np.array([a[0] for a in fl.path_t[1:]])
+    ys = np.array([a[:, 0] for a in fl.path_y[1:]]).T if len(fl.path_y) > 1 else np.zeros((pt.rows, 0))
+    keep = np.isfinite(ts)
+    if keep.any():
+        run.emit(ts[keep], ys[:, keep], on)
+    run.t = float(fl.t[0])
+    run.y = fl.y[:, 0].copy()
+    return fl
+
+
+def _blocks(run: _Run) -> bool:
+    """With an eddy term, switched off and conducting: whether the freewheel path blocks at
+    once (the terminal current's step at the turn-off takes it to zero or below): through a
+    clamp on the drooping bus where ``u - V_c + R_e i_m <= 0``, else below the block current."""
+    pt = run.pt
+    i_m = pt.current(run.y[0], run.y[1])
+    if pt.droop and pt.p.clamp is not None:
+        return float(run.y[5]) - float(pt.p.clamp[0]) + pt.eddy * i_m <= 0.0
+    return i_m <= pt.i_block
+
+
+def _rest_clamped(run: _Run, t_end: float, rtol: float) -> None:
+    """A resting armature switched off on the drooping bus with a clamp across the switch
+    (``p.clamp``): the current flows on from the bus through the clamp (``L di/dt = u - V_c -
+    R_off i``, the bus feeding it; with an eddy term the branch behind the loop's Thevenin
+    pair) -- the flight integrator with the armature held at its stop (``fly(held=...)``)
+    until ``t_end``, the current's zero (the clamp stops conducting; the bus then relaxes
+    alone, :func:`_rest_segment_droop`; with an eddy term the flux dies on through ``R_e``,
+    held on in the same integrator) or, on the seat, the flux falling to the stay current's
+    (the armature lets go)."""
+    pt = run.pt
+    seated = run.state == "seated"
+    if run.live and pt.eddy is not None and _blocks(run):
+        run.live = False
+        run.mark("zero")
+        return
+    fl = _held_flight(run, t_end, False, rtol, live=run.live,
+                      flux_down=np.array([pt.lam_stay if seated else -math.inf]))
+    end = int(fl.end[0])
+    if end == ZERO:
+        run.live = False
+        if pt.eddy is None:
+            run.y[0] = 0.0
+        run.mark("zero")
+    elif end == START:   # on the seat, down to the stay current: it lets go
+        run.y[0] = pt.lam_stay * (1.0 - 1e-12)
+        run.state = "free"
+        run.mark("unlatch")
 
 
 def _rest_segment_droop(run: _Run, t_end: float, on: bool, points: int, stop) -> None:
@@ -451,7 +503,7 @@ def _free_segment(run: _Run, t_end: float, on: bool, method: str, rtol: float, d
     pt = run.pt
     if on:
         run.live = True
-    elif run.live and pt.eddy is not None and pt.current(run.y[0], run.y[1]) <= pt.i_block:
+    elif run.live and pt.eddy is not None and _blocks(run):
         # an eddy term: the turn-off's step takes the terminal current to zero at once
         run.live = False
         run.mark("zero")

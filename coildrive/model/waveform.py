@@ -636,7 +636,10 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     main = (params_from_loop(drive.armature, lp, l_factor, drive.coil.eddy_resistance,
                              bus=(s.source_resistance, s.capacitance))
             if s.boosted and s.droops and hold is None else None)
+    if main is not None and drive.freewheel.type == "clamp":   # its off-times draw from the bus
+        main = main.clamped()
     main_bus = None
+    fed: list = []   # after a boost on a drooping main supply: the source less the converter's draw, V
     split = split_decay(drive)
     bridge = full_bridge(drive)   # the hold decays slowly, the release fast into the bus
     fast = p_rel = None
@@ -699,6 +702,7 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
         on_bus = p
         if main is not None:
             on_bus = converter_fed(drive, main, float(head.current[-1]), duty, frequency)
+            fed.append(float(on_bus.v_on[0]))
             start.append(supply)
         rest = simulate(on_bus, schedule[1:], state=head.state, start=np.array(start), live=live,
                         method=method, points=points, stop=released, release_params=p_rel, t0=peak_time)
@@ -803,7 +807,18 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     if on_bus:   # the release rides the drooping bus (the capacitor a state of the run)
         p_bus = params_from_loop(drive.armature, fast, l_factor, drive.coil.eddy_resistance,
                                  bus=(s.source_resistance, s.capacitance))
-        tr = _bus_release(tr, p_bus, t_off, float(fast.v_off - fast.v_on), s.sink, points)
+        if main_bus is None:
+            tr = _bus_release(tr, p_bus, t_off, float(fast.v_off - fast.v_on), s.sink, points)
+        else:   # after a boost: from the main bus at the turn-off, the converter still drawing
+            # (on a supply that sinks its Thevenin source, on one that cannot its current)
+            boost_rows = tr.bus
+            drain = np.array([(float(p_bus.v_on[0]) - fed[-1]) / s.source_resistance])
+            tr = _bus_release(tr, dataclasses.replace(p_bus, v_on=np.array(fed[-1:])) if s.sink else p_bus,
+                              t_off, float(fast.v_off - fast.v_on), s.sink, points, bus=main_bus,
+                              drain=None if s.sink else drain)
+            main_bus = tr.bus   # (the boost's trace reads tr.bus up to the peak's end only)
+            k = int(np.searchsorted(tr.time, t_off * (1.0 - 1e-12)))
+            tr.bus = np.concatenate([boost_rows[:k + 1], main_bus[k + 1:]])
     current = tr.current
     on = tr.switch_on
     if p.eddy is not None:
@@ -884,13 +899,16 @@ def converter_fed(drive: Drive, main, i_hand: float, duty: float, frequency: flo
     return dataclasses.replace(main, v_on=main.v_on - s.source_resistance * i_conv)
 
 
-def _bus_release(tr, p_bus, t_off: float, v_d2: float, sink: bool, points: int):
+def _bus_release(tr, p_bus, t_off: float, v_d2: float, sink: bool, points: int, bus=None, drain=None):
     """``tr`` (a moving armature's actuation on a full bridge, its hold on the stiff bus) with
     its release from the final turn-off at ``t_off`` s replaced by the run into the drooping
     bus (:func:`coildrive.model.armature_bus_release.release` from the state there, the bus
     at the source's voltage ``p_bus.v_on``, ``v_d2`` V the two body diodes; ``points``
     samples an integrator step): the current (terminal), the flux, the motion, the bus and
-    the moments after the turn-off (unlatch, open, zero) are the run's."""
+    the moments after the turn-off (unlatch, open, zero) are the run's. ``bus``: the bus's
+    samples up to the turn-off (V, at ``tr.time``; the hold after a boost on the main bus),
+    the release starting from its value there instead; ``drain``: A drawn off the bus besides
+    (:func:`~coildrive.model.armature_bus_release.release`)."""
     from .armature import OPENED
     from .armature_bus_release import release
 
@@ -899,7 +917,8 @@ def _bus_release(tr, p_bus, t_off: float, v_d2: float, sink: bool, points: int):
     full = tr.flux.size == tr.time.size
     flux = float(tr.flux[k]) if full else float(p_bus.flux_closed(np.array([tr.current[k]]))[0])
     start = (np.array([flux]), np.array([float(tr.position[k])]), np.array([float(tr.velocity[k])]))
-    r = release(p_bus, 0.0, float(p_bus.v_on[0]), v_d2, sink=sink, start=start, record=max(points, 2))
+    v0 = float(p_bus.v_on[0]) if bus is None else float(bus[k])
+    r = release(p_bus, 0.0, v0, v_d2, sink=sink, start=start, record=max(points, 2), drain=drain)
     t, y, i_t = r.path
     eddy = p_bus.eddy is not None
     j = 0 if eddy else 1   # (with an eddy term the terminal current steps at the turn-off: both rows)
@@ -927,7 +946,8 @@ def _bus_release(tr, p_bus, t_off: float, v_d2: float, sink: bool, points: int):
         tr, time=joined(tr.time, t_off + t), position=joined(tr.position, y[1]), **integrals,
         velocity=joined(tr.velocity, y[2]), switch_on=joined(tr.switch_on, np.zeros(t.size, tr.switch_on.dtype)),
         current=joined(tr.current, i_t), magnetising_current=mag,
-        bus=joined(tr.bus if tr.bus is not None else np.full(tr.time.shape, float(p_bus.v_on[0])), y[5]),
+        bus=joined(bus if bus is not None else tr.bus if tr.bus is not None
+                   else np.full(tr.time.shape, float(p_bus.v_on[0])), y[5]),
         log=log, events=events, impacts=[im for im in tr.impacts if im[0] <= t_off],
         state="open" if b.status[0] == OPENED else tr.state, stopped=True)
 
