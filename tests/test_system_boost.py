@@ -180,8 +180,10 @@ def test_bound_never_below_the_simulated_rail_current(doc):
     cold, R and L at both tolerance ends, the boost at its highest on the nominal capacitor
     and at its lowest on the smallest (or an ideal boost at both), the sense reading 2 %
     low and high: the peak, the converter and 30 hold periods never above the channel's
-    bound; the bound's highest value (the converter plus the coil's top; an ideal boost's
-    converter feeding the coil at its end current) within 20 % of the simulated worst."""
+    bound; the bound's highest value in the peak (the converter plus the coil's top; an
+    ideal boost's converter feeding the coil at its end current) within 20 % of the
+    simulated worst, and never above ``top_a`` (the branch's highest draw, which the
+    stagger's proof takes: the tail may start above it)."""
     system, _ = doc
     ch = system["channels"][-1]
     d = ch["design"]
@@ -201,8 +203,9 @@ def test_bound_never_below_the_simulated_rail_current(doc):
                         assert np.all(rail <= bound + 1e-9), (v, r_f, l_f, v_b, reading,
                                                              float(np.max(rail - bound)))
                         worst = max(worst, float(rail.max()))
-    print(f"bound {b['top_a']:.4f} A vs simulated worst {worst:.4f} A")
-    assert worst <= b["top_a"] <= 1.2 * worst
+    rise = float(_branch(np.array(b["peak_s"]), b))        # the peak's part at its highest
+    print(f"bound {rise:.4f} A in the peak ({b['top_a']:.4f} A at the tail's start) vs simulated worst {worst:.4f} A")
+    assert worst <= rise <= b["top_a"] and rise <= 1.2 * worst
 
 
 def test_staggered_total_never_above_the_limit(doc):
@@ -241,31 +244,35 @@ def test_a_boosted_channel_without_its_efficiency_is_refused(tmp_path):
     assert "\n" not in line and "supply.boost_efficiency: missing" in line, line
 
 
-@pytest.mark.parametrize("eddy", [False, True])
-def test_a_boosted_channel_with_a_moving_armature_is_refused(tmp_path, eddy):
-    """A boosted purge valve given the moving armature of tests/test_system_armature.py
-    (45/70 mH), with and without the 1 kohm eddy term: one line naming ``supply.boost``,
-    exit 2. Why (scipy ``solve_ivp``, LSODA, the boost capacitor into the coil written
-    afresh as in :func:`_simulate`): while the armature still rests on its open stop (the
-    co-energy force ``i^2 L_open^2 beta / (2 L_c)`` below preload + load) the coil is
-    the open one, and from the boost at its highest it passes the seated coil's rise
-    ``V_b/R (1 - exp(-t R/L_c))`` at the coldest loop and lowest seated inductance, which
-    the boosted branch would take: so the rail's bound is not built for it."""
+def test_a_boosted_channel_with_a_moving_armature_takes_the_open_coil(tmp_path, eddy=False):
+    """A boosted purge valve given the heavy moving armature of tests/test_system_armature.py
+    (45/70 mH, 6 g): designed (it is not carried onto
+    the seat in time, so the channel fails and its hold's bound stays the flux's over the
+    open inductance, L_c/L_open x the seated one). Its bound's rise is the open coil's
+    (tests/test_system_boost_armature.py has the whole run): scipy ``solve_ivp``, LSODA, the
+    boost capacitor into the coil written afresh as in :func:`_simulate` -- while the
+    armature still rests on its open stop (the co-energy force ``i^2 L_open^2 beta / (2
+    L_c)`` below preload + load) the coil is the open one, and from the boost at its highest
+    it passes the seated coil's rise ``V_b/R (1 - exp(-t R/L_c))`` at the coldest loop and
+    lowest seated inductance by 30 %; the branch's bound is never below it."""
     from scipy.integrate import solve_ivp
 
     from test_system_armature import ARMATURE
+    from test_system_boost_armature import _branch as arm_branch
 
     path = _folder(tmp_path, eddy=eddy)
     purge = tmp_path / "purge-valve-24v.toml"
     purge.write_text(purge.read_text() + ARMATURE)
     r = CliRunner().invoke(app, ["design", str(path), "--json"])
-    assert r.exit_code == 2, r.output
-    line = r.stderr.strip()
-    assert "\n" not in line and "supply.boost:" in line and "moving armature" in line, line
+    assert r.exit_code == 1, r.output
+    system = json.loads(r.stdout)["system"]
+    ch = system["channels"][-1]
+    assert ch["design"]["armature"]["seated_corners"] < ch["design"]["armature"]["corners"]
+    (b,) = ch["bound"]["branches"]
     drv = load_drive(purge, BOARD)
-    c, b, s, a = drv.coil, drv.board, drv.supply, drv.armature
+    c, bd, s, a = drv.coil, drv.board, drv.supply, drv.armature
     r_on = (c.resistance * (1 + 0.00393 * (drv.ambient.min - c.reference_temp)) * (1 - c.resistance_tolerance)
-            + drv.switch.on_resistance + b.sense.resistance)                  # IEC 60028, the coldest loop
+            + drv.switch.on_resistance + bd.sense.resistance)                  # IEC 60028, the coldest loop
     l_f = 1 - c.inductance_tolerance
     l_open, l_c = a.inductance_open * l_f, a.inductance_closed * l_f
     beta = (a.inductance_closed - a.inductance_open) / (a.stroke * a.inductance_open)
@@ -275,7 +282,9 @@ def test_a_boosted_channel_with_a_moving_armature_is_refused(tmp_path, eddy):
         r = r_on + s.boost_resistance
         i = y[0] if r_e is None else (y[1] + r_e * y[0]) / (r + r_e)
         di = (y[1] - r * y[0]) / l_open if r_e is None else r_e * (i - y[0]) / l_open
-        return [di, (-i + s.boost_power / y[1]) / s.boost_capacitance]
+        # the converter holds the capacitor at v_b, charging it at most at boost_power below
+        charge = s.boost_power / y[1] if y[1] < v_b else min(s.boost_power / y[1], i)
+        return [di, (-i + charge) / s.boost_capacitance]
     t = np.linspace(0, 2e-4, 41)
     sol = solve_ivp(rhs, (0, t[-1]), [0.0, v_b], method="LSODA", rtol=1e-10, atol=1e-12, t_eval=t)
     i_m = sol.y[0]
@@ -286,3 +295,6 @@ def test_a_boosted_channel_with_a_moving_armature_is_refused(tmp_path, eddy):
     seated = v_b / r_on * -np.expm1(-t * r_th / l_c)
     print(f"at {t[-1] * 1e6:.0f} us: {i_m[-1]:.4f} A against the seated rise {seated[-1]:.4f} A")
     assert i_m[-1] > 1.3 * seated[-1]
+    terminal = i_m if r_e is None else (sol.y[1] + r_e * i_m) / (r_on + s.boost_resistance + r_e)
+    assert np.all(terminal + b["converter_a"] <= arm_branch(t, b) + 1e-9)
+    assert b["hold_top_a"] > b["flux_ratio"] * 0.3      # the flux's bound: above 1.56 x the 0.33 A hold

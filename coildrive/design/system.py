@@ -25,8 +25,8 @@ A channel is a linear coil, with a moving armature (:mod:`coildrive.model.armatu
 an eddy term or both, or a flux-linkage curve (:mod:`coildrive.model.flux_bound`; with a
 moving armature over two curves too, :func:`_gap_rise`), on one
 switch or a full bridge, or a latching coil (its pulses: :func:`_latch_bound_params`), or a
-boosted peak without a moving armature (its converter's draw: :func:`_boost_keys`); what
-is not is refused in one line (:func:`_refuse`). A rail with a curve, an eddy term or a bridge on it takes its droop
+boosted peak (its converter's draw: :func:`_boost_keys`; with a moving armature on a linear
+coil: :func:`_boost_armature_keys`); what is not is refused in one line (:func:`_refuse`). A rail with a curve, an eddy term or a bridge on it takes its droop
 from the rail-current bounds (:func:`bus_from_bound`).
 """
 
@@ -216,8 +216,9 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
     supply and readable duty, the hottest coil of the design's corners). With a moving
     armature the peak's rise is :func:`_armature_rise`'s (the open coil's while the armature
     is proved to only close) and the tail is the seated coil's, one part; over two curves
-    :func:`_gap_rise`'s, the tail the seated curve's. A latching
-    coil's: :func:`_latch_bound_params`."""
+    :func:`_gap_rise`'s, the tail the seated curve's. A boosted peak's: :func:`_boost_keys`
+    (with a moving armature :func:`_boost_armature_keys`). A latching coil's:
+    :func:`_latch_bound_params`."""
     if is_latch(d):
         return _latch_bound_params(d)
     drive = d.drive
@@ -299,13 +300,17 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             r_low = np.minimum(top_cold.r_on, top_cold.r_off)
             r_slow_eddy = float(np.min(r_eddy * r_low / (r_low + r_eddy)))
         if drive.supply.boosted:
+            flight = _hold_flight(d)
             branch.update(_boost_keys(d, hi, r_on, l_min, hold_top, bottom, reading_droop_v, r_eddy,
-                                      None if curve is None else flux.FluxCoil(curve, float(scale.min()))))
+                                      None if curve is None else flux.FluxCoil(curve, float(scale.min())),
+                                      flight))
+            if drive.armature is not None:
+                branch.update(_boost_armature_keys(d, branch, hi, l_max, flight))
             # with an eddy term the end current (terminal) is above the magnetising one,
             # whose excess decays at the slowest Thevenin rate
             i_pe = np.array([d.boost.end_current_max_a])
             ends = np.array([l_min, l_max])
-            peak_end["a"] = float(_branch_rise(tp, branch))
+            peak_end["a"] = float(_branch_rise(branch["peak_s"], branch))
             if r_eddy is not None:
                 r_slow = r_slow_eddy
             if curve is not None:
@@ -388,10 +393,18 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             # never above the larger of its orbit's top and two periods' rise (_two_period_top)
             cap = max(hold_top, _two_period_top(float(i_pe[0]), hi, r_on, l_min, 1.0 / f))
             branch.update({"tail_cap_a": cap, "top_a": min(cap, hold_top + max(0.0, float(i_pe[0]) - bottom))})
-        branches.append({**branch, "peak_end_a": float(peak_end.get("a", i_pe[0])), "hold_top_a": hold_top,
-                         "excess_a": [max(0.0, float(x) - bottom) for x in i_pe],
+        seated = 1.0
+        if drive.supply.boosted and drive.armature is not None and not _proved_seated(d):
+            # never proved on the seat: the flux's bound over the open coil (_boost_armature_keys)
+            seated = branch["flux_ratio"]
+        branches.append({**branch, "peak_end_a": float(peak_end.get("a", i_pe[0])), "hold_top_a": hold_top * seated,
+                         "excess_a": [seated * max(0.0, float(x) - bottom) for x in i_pe],
                          "tail_inductance_h": [float(x) for x in ends[1:]],
                          "slow_resistance_ohm": r_slow, "pwm_period_s": settle_s})
+        if drive.supply.boosted:
+            # its highest draw (the stagger's proof takes it): the tail may start above the rise
+            b_ = branches[-1]
+            b_["top_a"] = max(b_["top_a"], float(_branch_parts(b_["peak_s"], b_)[1]))
     return {"reading_droop_v": reading_droop_v, **_summary(branches)}
 
 
@@ -476,7 +489,7 @@ def _latch_heat(name: str, d) -> dict:
 
 
 def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bottom: float,
-                reading_droop_v: float, r_eddy: float | None = None, curve=None) -> dict:
+                reading_droop_v: float, r_eddy: float | None = None, curve=None, flight: float = 1.0) -> dict:
     """The keys a boosted peak's branch adds (docs/design-method.md, "A boosted peak"): the
     coil's current from switch-on is at most the rise ``V_b/R (1 - exp(-t R/L))`` from the
     boost at its highest through the coldest on-loop (the capacitor's voltage only falls,
@@ -512,7 +525,16 @@ def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bott
     ``boost_rise_current_a``, :func:`~coildrive.model.flux_bound.rise_table`), and under a
     voltage-mode hold the period map on the flux is increasing and contracting too, each
     period adding at most ``V T / s``: ``coil_top_a`` the larger of the hold's top and
-    ``psi^-1(psi(I_end) + 2 V T / s)``."""
+    ``psi^-1(psi(I_end) + 2 V T / s)``.
+
+    With a moving armature (a linear coil, ``l_min`` its lowest seated inductance) that may
+    still fly in the hold (``flight = L_c/L_open > 1``, :func:`_hold_flight`) the PWM's
+    falling flux leaves its closing unproved: any motion, the flux linkage ``lambda =
+    L(x) i`` obeys ``dlambda/dt = v - R i <= v - R lambda/L_c`` (``L(x) <= L_c``), so it is
+    at most the seated coil's under the same PWM from the hand-over (``lambda <= L_c
+    I_end``), and ``i <= lambda/L_open``: ``coil_top_a`` is ``flight`` x the seated bound
+    above (with an eddy term the magnetising current's, the terminal current the larger of
+    it and ``(V + R_e i_m)/(R + R_e)``), and never below ``I_end`` (the boosted peak's)."""
     drive = d.drive
     s, bst = drive.supply, d.boost
     v_low = max(s.min - reading_droop_v, 1e-3)
@@ -526,9 +548,15 @@ def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bott
         coil_top = max(hold_top, float(np.asarray(reach).ravel()[0]))
     elif r_eddy is not None:
         top_m = _two_period_top(i_end, v_hi * r_eddy / (r_on + r_eddy), r_on * r_eddy / (r_on + r_eddy), l_min, period)
-        coil_top = max(hold_top, (v_hi + r_eddy * top_m) / (r_on + r_eddy))
+        if flight > 1.0:     # (the orbit's magnetising top is below its terminal one, hold_top)
+            top_m = flight * max(hold_top, top_m)
+            coil_top = max(i_end, top_m, (v_hi + r_eddy * top_m) / (r_on + r_eddy))
+        else:
+            coil_top = max(hold_top, (v_hi + r_eddy * top_m) / (r_on + r_eddy))
     else:
         coil_top = max(hold_top, _two_period_top(i_end, v_hi, r_on, l_min, period))
+        if flight > 1.0:
+            coil_top = max(i_end, flight * coil_top)
     out = {"boost_v": bst.boost_max_v, "resistance_ohm": r_on, "inductance_h": l_min, "coil_top_a": coil_top,
            "boost_efficiency": s.boost_efficiency}
     if r_eddy is not None:
@@ -547,6 +575,68 @@ def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bott
                     "feed_end_a": bst.end_current_max_a})
         out["top_a"] = max(out["feed_ratio"] * bst.end_current_max_a, coil_top)
     return out
+
+
+def _hold_flight(d) -> float:
+    """The factor a boosted peak's hold bound takes for an armature that may still fly in
+    the hold: ``L_c/L_open`` where it is not seated within the peak at every corner of the
+    design (:attr:`~coildrive.design.result.ArmatureResult.seated_in_peak_corners`), else
+    1 (no armature, or seated before every hand-over)."""
+    a = d.armature
+    if d.drive.armature is None or a is None or a.seated_in_peak_corners == a.corners:
+        return 1.0
+    return a.inductance_closed_h / a.inductance_open_h
+
+
+def _proved_seated(d) -> bool:
+    """Whether a boosted armature's design has it on the seat from its window's end on:
+    seated at every corner within ``seat_window_s`` and held there (its ``armature_seats``
+    and ``armature_hold`` checks pass; the seat inelastic, ``restitution`` 0)."""
+    ok = {c.name: c.ok for c in d.checks}
+    a = d.armature
+    return (a is not None and a.seated_corners == a.corners and ok.get("armature_seats", False)
+            and ok.get("armature_hold", False))
+
+
+def _boost_armature_keys(d, branch: dict, v_hi: float, lc_high: float, flight: float) -> dict:
+    """The keys a boosted peak's branch with a moving armature adds or replaces
+    (docs/design-method.md, "Several channels"; SI units). ``branch``: its keys so far
+    (:func:`_boost_keys`; ``inductance_h`` the lowest seated inductance), ``v_hi`` V the
+    branch's top supply, ``lc_high`` H the highest seated inductance, ``flight``
+    (:func:`_hold_flight`).
+
+    From switch-on the coil is driven by at most ``V = max(V_b,max, v_hi)`` (the boost's
+    capacitor only falls, then the main supply; off-times drive it down). While the
+    armature only closes its current is at most the open coil's rise
+    (:mod:`~coildrive.model.armature_bound`), proved from its earliest start over the
+    closing window while the source only pushes the flux up -- in the boosted peak, so no
+    later than the hand-over, which comes no sooner than the open coil's fastest rise
+    reaches the threshold ``boost.threshold_a`` (the lowest true current a trip can read:
+    ``t*``; with an eddy term the terminal current, on the magnetising rise through the
+    Thevenin pair); so ``closing_s`` is the earlier of the window's end and ``t*``. After
+    it the any-motion bound (the seated coil's flux over the open inductance), which holds
+    under any voltage up to ``V``, PWM or not. Over the whole of it the current is at most
+    ``coil_top_a`` (:func:`_boost_keys` with ``flight``: the end current, or the flux's
+    bound in the hold over the open inductance while the armature may still fly there).
+    Where it may fly in the hold (``flight > 1``) the branch's peak (``peak_s``) lasts to
+    the seat's window (``armature.seat_window_s``) if that is later than the time-out:
+    from there on it is seated and the tail is the seated coil's."""
+    drive, arm = d.drive, d.drive.armature
+    r, l_c = branch["resistance_ohm"], branch["inductance_h"]
+    v = max(branch["boost_v"], v_hi)
+    r_e = branch.get("eddy_resistance_ohm")
+    trip = d.boost.threshold_a
+    if r_e is None:
+        v_rise, r_rise, need = v, r, trip
+    else:       # the magnetising current's rise through the Thevenin pair; the terminal trips
+        v_rise, r_rise, need = v * r_e / (r + r_e), r * r_e / (r + r_e), ((r + r_e) * trip - v) / r_e
+    keys = _armature_rise(arm, v_rise, r_rise, l_c, lc_high, math.inf)
+    frac = need * r / v
+    t_star = 0.0 if need <= 0 else math.inf if frac >= 1 else -keys["inductance_h"] / r_rise * math.log1p(-frac)
+    keys.update({"boost_v": v, "closing_s": min(keys["closing_s"], t_star)})
+    if flight > 1.0:
+        keys["peak_s"] = max(branch["peak_s"], d.armature.seat_window_s)
+    return keys
 
 
 def _two_period_top(i0: float, v: float, r: float, l: float, period: float) -> float:
@@ -572,6 +662,9 @@ def _boost_rise(t, b: dict):
         coil = flux_bound.table_current(t, b["boost_rise_time_s"], b["boost_rise_current_a"])
     elif "eddy_resistance_ohm" in b:   # the terminal current on the magnetising current's rise
         coil = _eddy_terminal_rise(t, {**b, "supply_v": b["boost_v"]})
+    elif "closing_s" in b:             # a moving armature's (_boost_armature_keys)
+        coil = armature_bound.peak_rise(t, b["boost_v"], b["resistance_ohm"], b["inductance_h"],
+                                        b["closed_inductance_h"], b["flux_ratio"], b["closing_s"])
     else:
         coil = b["boost_v"] / b["resistance_ohm"] * -np.expm1(-np.clip(t, 0.0, None) * b["resistance_ohm"]
                                                              / b["inductance_h"])
@@ -1142,17 +1235,15 @@ def _refuse(system: System, ch) -> None:
     """What the rail's current bound is made for: a linear coil (with a moving armature,
     an eddy term or both) or a flux-linkage curve (with a moving armature over two curves
     too), on one switch or a full bridge, under a voltage-mode (fixed, supply-table or
-    closed-loop) hold or a current-mode one, or a latching coil, or a boosted peak.
+    closed-loop) hold or a current-mode one, or a latching coil, or a boosted peak (a
+    linear coil with a moving armature, an eddy term or both; a curve with neither).
     Anything else is refused in one line: a moving armature over two curves with an eddy
     term or a boosted peak (its bound takes the coil's own terminal voltage), a boosted
     peak with an eddy term on a curve (the eddy term's bound takes a linear coil), a boosted
-    peak with a bouncing armature (``restitution``: a rebound's motional term drives the
-    current past the boost's rise, :func:`_boost_keys`), a boosted peak with any moving
-    armature, an eddy term or not (:func:`_boost_keys` takes the seated coil's inductance,
-    which the open coil outruns from the boost, and the armature may still fly in the hold,
-    where the PWM's falling flux leaves the closing-only proof of
-    :mod:`~coildrive.model.armature_bound` unproved), a latching coil's pulses from the
-    boost, and a boosted peak without ``supply.boost_efficiency`` (its converter's draw)."""
+    peak with a bouncing armature (``restitution``: a rebound drives the current past the
+    boost's rise and the design's end current, which :func:`_boost_keys` takes), a latching
+    coil's pulses from the boost, and a boosted peak without ``supply.boost_efficiency``
+    (its converter's draw)."""
     d = ch.drive
     why = None
     if d.coil.flux_current and d.armature is not None and (d.coil.eddy_resistance or d.supply.boosted):
@@ -1163,10 +1254,6 @@ def _refuse(system: System, ch) -> None:
     elif d.supply.boosted and d.armature is not None and d.armature.restitution > 0:
         key, why = "armature.restitution", ("a boosted peak with a bouncing armature (a rebound drives the "
                                             "current past the boost's rise the rail's bound takes)")
-    elif d.supply.boosted and d.armature is not None:
-        key, why = "supply.boost", ("a boosted peak with a moving armature, with or without an eddy-current term "
-                                    "(the open coil rises from the boost faster than the seated coil the rail's "
-                                    "bound takes, and the armature may still move in the hold)")
     elif d.supply.boosted and d.latch is not None:
         key, why = "supply.boost", "a latching coil's pulses from the boost (their rail-current bound)"
     elif d.supply.boosted and not d.supply.boost_efficiency > 0:
@@ -1179,8 +1266,8 @@ def _refuse(system: System, ch) -> None:
                          "or a flux-linkage curve (with an eddy term, or with an [armature] and no eddy term), "
                          "on one switch or a full bridge under a voltage-mode fixed, supply-table, closed-loop "
                          "or current-mode hold, or a latching coil (not from a boost); a boosted peak on a linear "
-                         "coil (an eddy term or not, no [armature]) or on a curve with neither an eddy term nor an "
-                         "[armature]")
+                         "coil (an eddy term, an [armature] without restitution, both or neither) or on a curve "
+                         "with neither an eddy term nor an [armature]")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:
