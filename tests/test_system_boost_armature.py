@@ -8,7 +8,8 @@ Outside references, named beside each check:
   diode blocks) on the channel written afresh here from the textbook magnetic-circuit
   model (``L(x) = L_c / (1 + beta x)`` through the two measured inductances, the flux
   linkage ``lambda = L(x) i_m`` a state, co-energy force ``lambda^2 beta / (2 L_c)``,
-  spring + load, viscous damping, an inelastic seat and the open stop) and Kirchhoff's
+  spring + load, viscous damping, the seat -- inelastic, or throwing it back at
+  ``restitution`` x its speed until that is below 1 mm/s -- and the open stop) and Kirchhoff's
   laws: the boost capacitor into the coil through ``R_on + R_b`` (``C du/dt = -i + P/u``,
   the converter charging it at a constant power ``P`` from switch-on while it is below its
   charge ``V_b`` -- it regulates there, giving at most the coil's current -- taking
@@ -48,17 +49,20 @@ BOARD = BOARDS / "manifold-m32-6ch.toml"
 LIGHT = ARMATURE.replace('"6 g"', '"2 g"').replace('"1.2 mm"', '"0.8 mm"')
 
 
-@pytest.fixture(scope="module", params=["linear", "eddy"])
+@pytest.fixture(scope="module", params=["linear", "eddy", "bounce"])
 def doc(request, tmp_path_factory):
     """The manifold with its purge valves boosted (tests/test_system_boost.py) and given the
     light armature (and the release current its mechanics drop out at); ``eddy``: an
-    invented 3 kohm eddy term across the coil."""
+    invented 3 kohm eddy term across the coil; ``bounce``: a seat that throws the armature
+    back at half its impact speed (``restitution = 0.5``, invented)."""
     folder = tmp_path_factory.mktemp("boostarm")
     path = _folder(folder)
     purge = folder / "purge-valve-24v.toml"
     text = purge.read_text().replace('current = "0.09 A"', 'current = "0.15 A"') + LIGHT
     if request.param == "eddy":
         text = text.replace("[coil]\n", '[coil]\neddy_resistance = "3000 ohm"\n', 1)
+    if request.param == "bounce":
+        text += "restitution = 0.5\n"
     purge.write_text(text)
     r = CliRunner().invoke(app, ["design", str(path), "--json"])
     assert r.exit_code == 0, r.output
@@ -172,7 +176,9 @@ def _simulate(drv, d, v, r_f, l_f, v_b, cap, reading, t_stop, n=12):
             if len(sol.t_events[0]):
                 if mode[0] in ("open", "seat"):
                     mode[0] = "flight"
-                elif y[1] < 0.5 * a.stroke:            # the seat: inelastic
+                elif y[1] < 0.5 * a.stroke and a.restitution * abs(y[2]) > 1e-3:   # a rebound, opening
+                    y[1], y[2] = 0.0, a.restitution * abs(y[2])
+                elif y[1] < 0.5 * a.stroke:            # the seat: at rest there
                     y[1], y[2] = 0.0, 0.0
                     mode[0] = "seat" if fmag(y) >= fopen(0.0) else "flight"
                     seat[0] = min(seat[0], t0) if mode[0] == "seat" else seat[0]

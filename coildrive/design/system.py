@@ -578,10 +578,11 @@ def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bott
 
 
 def _hold_flight(d) -> float:
-    """The factor a boosted peak's hold bound takes for an armature that may still fly in
-    the hold: ``L_c/L_open`` where it is not seated within the peak at every corner of the
-    design (:attr:`~coildrive.design.result.ArmatureResult.seated_in_peak_corners`), else
-    1 (no armature, or seated before every hand-over)."""
+    """The factor a boosted peak's hold bound takes for an armature that may still move in
+    the hold: ``L_c/L_open`` where it is not at rest on the seat within the peak at every
+    corner of the design (:attr:`~coildrive.design.result.ArmatureResult.seated_in_peak_corners`;
+    a bouncing seat's rebounds included), else 1 (no armature, or seated before every
+    hand-over)."""
     a = d.armature
     if d.drive.armature is None or a is None or a.seated_in_peak_corners == a.corners:
         return 1.0
@@ -590,8 +591,9 @@ def _hold_flight(d) -> float:
 
 def _proved_seated(d) -> bool:
     """Whether a boosted armature's design has it on the seat from its window's end on:
-    seated at every corner within ``seat_window_s`` and held there (its ``armature_seats``
-    and ``armature_hold`` checks pass; the seat inelastic, ``restitution`` 0)."""
+    at rest there at every corner within ``seat_window_s`` (a bouncing seat's rebounds
+    over) and held (its ``armature_seats`` and ``armature_hold`` checks pass): nothing
+    lifts it after that."""
     ok = {c.name: c.ok for c in d.checks}
     a = d.armature
     return (a is not None and a.seated_corners == a.corners and ok.get("armature_seats", False)
@@ -613,7 +615,8 @@ def _boost_armature_keys(d, branch: dict, v_hi: float, lc_high: float, flight: f
     later than the hand-over, which comes no sooner than the open coil's fastest rise
     reaches the threshold ``boost.threshold_a`` (the lowest true current a trip can read:
     ``t*``; with an eddy term the terminal current, on the magnetising rise through the
-    Thevenin pair); so ``closing_s`` is the earlier of the window's end and ``t*``. After
+    Thevenin pair); so ``closing_s`` is the earlier of the window's end and ``t*`` (with a
+    bouncing seat, ``restitution``, the window is empty: the earliest start). After
     it the any-motion bound (the seated coil's flux over the open inductance), which holds
     under any voltage up to ``V``, PWM or not. Over the whole of it the current is at most
     ``coil_top_a`` (:func:`_boost_keys` with ``flight``: the end current, or the flux's
@@ -1239,11 +1242,9 @@ def _refuse(system: System, ch) -> None:
     linear coil with a moving armature, an eddy term or both; a curve with neither).
     Anything else is refused in one line: a moving armature over two curves with an eddy
     term or a boosted peak (its bound takes the coil's own terminal voltage), a boosted
-    peak with an eddy term on a curve (the eddy term's bound takes a linear coil), a boosted
-    peak with a bouncing armature (``restitution``: a rebound drives the current past the
-    boost's rise and the design's end current, which :func:`_boost_keys` takes), a latching
-    coil's pulses from the boost, and a boosted peak without ``supply.boost_efficiency``
-    (its converter's draw)."""
+    peak with an eddy term on a curve (the eddy term's bound takes a linear coil), a
+    latching coil's pulses from the boost, and a boosted peak without
+    ``supply.boost_efficiency`` (its converter's draw)."""
     d = ch.drive
     why = None
     if d.coil.flux_current and d.armature is not None and (d.coil.eddy_resistance or d.supply.boosted):
@@ -1251,9 +1252,6 @@ def _refuse(system: System, ch) -> None:
                                 "boosted peak")
     elif d.supply.boosted and d.coil.eddy_resistance and d.coil.flux_current:
         key, why = "supply.boost", "a boosted peak with an eddy-current term on a flux-linkage curve"
-    elif d.supply.boosted and d.armature is not None and d.armature.restitution > 0:
-        key, why = "armature.restitution", ("a boosted peak with a bouncing armature (a rebound drives the "
-                                            "current past the boost's rise the rail's bound takes)")
     elif d.supply.boosted and d.latch is not None:
         key, why = "supply.boost", "a latching coil's pulses from the boost (their rail-current bound)"
     elif d.supply.boosted and not d.supply.boost_efficiency > 0:
@@ -1266,7 +1264,7 @@ def _refuse(system: System, ch) -> None:
                          "or a flux-linkage curve (with an eddy term, or with an [armature] and no eddy term), "
                          "on one switch or a full bridge under a voltage-mode fixed, supply-table, closed-loop "
                          "or current-mode hold, or a latching coil (not from a boost); a boosted peak on a linear "
-                         "coil (an eddy term, an [armature] without restitution, both or neither) or on a curve "
+                         "coil (an eddy term, an [armature], both or neither) or on a curve "
                          "with neither an eddy term nor an [armature]")
 
 
