@@ -427,7 +427,8 @@ def _latch_bound_params(d) -> dict:
     across the switch does it draw the coil's current, which falls at least as
     ``exp(-R_off t/L_max)`` through the release path from the pulse's end (with the
     any-motion bound, the flux linkage does, the current at most its over the open
-    inductance): the excess the pulse's end bound there, else 0."""
+    inductance): the excess the pulse's end bound there, else 0. A pulse from the boost
+    draws its converter's input instead (:func:`_latch_boost_keys`)."""
     from .latch import winding_drive
 
     drive = d.drive
@@ -448,12 +449,46 @@ def _latch_bound_params(d) -> dict:
             branch.update(_armature_rise(wd.armature, v, r_on, l_min, l_max, tp))
             if p.name == "reset":
                 branch["closing_s"] = 0.0
+        if p.boost is not None:
+            branch.update(_latch_boost_keys(d, p, r_on, l_min, tp))
         end = float(_branch_rise(tp, branch))
+        # (from the boost its freewheel is across the winding: config refuses a clamp)
         draws = wd.freewheel.type == "clamp" and not circuit.full_bridge(wd)
         branches.append({**branch, "peak_end_a": end, "hold_top_a": 0.0, "excess_a": [end if draws else 0.0],
                          "tail_inductance_h": [l_max], "slow_resistance_ohm": float(np.min(rel.r_off)),
                          "pwm_period_s": 0.0})
     return {"reading_droop_v": 0.0, **_summary(branches)}
+
+
+def _latch_boost_keys(d, p, r_on: float, l_min: float, pulse_s: float) -> dict:
+    """The keys a latching coil's pulse from the boost adds to its branch
+    (:func:`_latch_bound_params`; docs/design-method.md, "Several channels"): the rail
+    carries the boost converter's input, not the winding's current -- the boost capacitor
+    feeds the winding and the main supply's diode blocks while it stays above the main
+    supply, which the pulse's ``{name}_boost_droop`` check proves at every corner (where
+    that check fails the winding's current is counted too, ``coil_top_a`` its highest end
+    current, as a boosted peak's). With a capacitor the converter draws at most its
+    output ``boost_power`` over ``supply.boost_efficiency`` at ``[supply] min`` from the
+    pulse's start until the energy the pulse took is back (``converter_until_s``: the
+    pulse's shortest interval, its longest real pulse plus the recharge of the most energy
+    it takes; without one the time-out ``pulse_s`` s plus that recharge); with an ideal boost it feeds
+    the winding while the pulse runs, ``V_b,max i / (eta V_min)``, ``i`` at most the rise
+    from the boost at its highest through the coldest loop (``r_on`` ohm, ``l_min`` H)
+    and the highest end current."""
+    s, bst = d.drive.supply, p.boost
+    v_low = max(s.min, 1e-3)
+    i_end = bst.end_current_max_a
+    ok = {c.name: c.ok for c in d.checks}.get(f"{p.name}_boost_droop", False)
+    out = {"boost_v": bst.boost_max_v, "resistance_ohm": r_on, "inductance_h": l_min,
+           "coil_top_a": 0.0 if ok else i_end, "boost_efficiency": s.boost_efficiency}
+    if bst.capacitance_f > 0:
+        converter = bst.power_w / (s.boost_efficiency * v_low)
+        busy = bst.min_interval_s if bst.min_interval_s is not None else pulse_s + (bst.recharge_time_s or 0.0)
+        out.update({"converter_a": converter, "converter_until_s": busy, "top_a": converter + out["coil_top_a"]})
+    else:
+        out.update({"feed_ratio": bst.boost_max_v / (s.boost_efficiency * v_low), "feed_end_a": i_end})
+        out["top_a"] = max(out["feed_ratio"] * i_end, out["coil_top_a"])
+    return out
 
 
 def _lowest_resistance(d) -> float:
@@ -1238,13 +1273,13 @@ def _refuse(system: System, ch) -> None:
     """What the rail's current bound is made for: a linear coil (with a moving armature,
     an eddy term or both) or a flux-linkage curve (with a moving armature over two curves
     too), on one switch or a full bridge, under a voltage-mode (fixed, supply-table or
-    closed-loop) hold or a current-mode one, or a latching coil, or a boosted peak (a
-    linear coil with a moving armature, an eddy term or both; a curve with neither).
-    Anything else is refused in one line: a moving armature over two curves with an eddy
-    term or a boosted peak (its bound takes the coil's own terminal voltage), a boosted
-    peak with an eddy term on a curve (the eddy term's bound takes a linear coil), a
-    latching coil's pulses from the boost, and a boosted peak without
-    ``supply.boost_efficiency`` (its converter's draw)."""
+    closed-loop) hold or a current-mode one, or a latching coil (its pulses from the boost
+    too), or a boosted peak (a linear coil with a moving armature, an eddy term or both; a
+    curve with neither). Anything else is refused in one line: a moving armature over two
+    curves with an eddy term or a boosted peak (its bound takes the coil's own terminal
+    voltage), a boosted peak with an eddy term on a curve (the eddy term's bound takes a
+    linear coil), and a boosted peak or pulses without ``supply.boost_efficiency`` (its
+    converter's draw)."""
     d = ch.drive
     why = None
     if d.coil.flux_current and d.armature is not None and (d.coil.eddy_resistance or d.supply.boosted):
@@ -1252,18 +1287,17 @@ def _refuse(system: System, ch) -> None:
                                 "boosted peak")
     elif d.supply.boosted and d.coil.eddy_resistance and d.coil.flux_current:
         key, why = "supply.boost", "a boosted peak with an eddy-current term on a flux-linkage curve"
-    elif d.supply.boosted and d.latch is not None:
-        key, why = "supply.boost", "a latching coil's pulses from the boost (their rail-current bound)"
     elif d.supply.boosted and not d.supply.boost_efficiency > 0:
         raise InputError(d.source, "supply.boost_efficiency", f"missing: channel {ch.name!r} of {system.source} "
-                         "has a boosted peak, whose converter draws from the shared rail, expected its efficiency "
-                         "(e.g. 0.85)")
+                         "has a boosted peak or pulses, whose converter draws from the shared rail, expected its "
+                         "efficiency (e.g. 0.85)")
     if why is not None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
                          "in a system yet; expected a linear coil (with an [armature], an eddy term or both) "
                          "or a flux-linkage curve (with an eddy term, or with an [armature] and no eddy term), "
                          "on one switch or a full bridge under a voltage-mode fixed, supply-table, closed-loop "
-                         "or current-mode hold, or a latching coil (not from a boost); a boosted peak on a linear "
+                         "or current-mode hold, or a latching coil (its pulses from the boost too); a boosted peak "
+                         "on a linear "
                          "coil (an eddy term, an [armature], both or neither) or on a curve "
                          "with neither an eddy term nor an [armature]")
 

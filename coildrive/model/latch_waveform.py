@@ -190,7 +190,7 @@ def boost_of(drive: Drive, r_on: float, inductance: float) -> boost_model.Boost:
     return boost_model.boost(s.boost, s.boost_capacitance, r_on + s.boost_resistance, inductance)
 
 
-def _boost_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float, r_factor: float,
+def boost_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float, r_factor: float,
                   l_factor: float, time, set_time: float, reset_time: float, gap: float) -> np.ndarray:
     """The boost capacitor (V) through both pulses: each pulse draws it down from full
     charge, then the converter recharges it at ``boost_power``
@@ -261,7 +261,7 @@ def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: 
         cols = {k: cols[k] for k in ("time_s", "current_a", "reset_current_a", "coil_voltage_v",
                                      "reset_coil_voltage_v", "switch_voltage_v", "reset_switch_voltage_v")}
     if drive.supply.boosted:
-        cols["boost_v"] = _boost_column(drive, reset_drive, supply, coil_temp, r_factor, l_factor, time,
+        cols["boost_v"] = boost_column(drive, reset_drive, supply, coil_temp, r_factor, l_factor, time,
                                         set_time, reset_time, gap)
     gap_all = (None if gap_s is None else
                np.concatenate([gap_s, np.zeros(n_i), np.full(tr.size, np.nan)]))
