@@ -62,10 +62,10 @@ def _folder(folder, efficiency=True, ideal=False, eddy=False, curve=False):
     return path
 
 
-@pytest.fixture(scope="module", params=["capacitor", "ideal", "eddy", "curve"])
+@pytest.fixture(scope="module", params=["capacitor", "ideal", "eddy", "curve", "curve-eddy"])
 def doc(request, tmp_path_factory):
-    path = _folder(tmp_path_factory.mktemp("boostsys"), ideal=request.param == "ideal", eddy=request.param == "eddy",
-                   curve=request.param == "curve")
+    path = _folder(tmp_path_factory.mktemp("boostsys"), ideal=request.param == "ideal",
+                   eddy=request.param in ("eddy", "curve-eddy"), curve=request.param.startswith("curve"))
     r = CliRunner().invoke(app, ["design", str(path), "--json"])
     assert r.exit_code == 0, r.output
     return json.loads(r.stdout)["system"], path
@@ -78,7 +78,8 @@ def _simulate(drv, d, v, r_f, l_f, v_b, cap, reading, periods=PERIODS, n=30):
     ``L di_m/dt = R_e (i - i_m)`` (Kirchhoff's laws); off, the diode's path the same with
     ``-V_d`` through ``R_off`` while that current is positive, else blocked (``L di_m/dt =
     -R_e i_m``). On a flux-linkage curve ``s L_d(i) di/dt = v - R i`` (scipy's PCHIP
-    through the table, tests/test_system_flux.py's ``_curve``)."""
+    through the table, tests/test_system_flux.py's ``_curve``; with an eddy term the
+    magnetising branch's ``s L_d(i_m)`` in ``L``'s place)."""
     from scipy.integrate import solve_ivp
 
     c, b, s = drv.coil, drv.board, drv.supply
@@ -93,10 +94,11 @@ def _simulate(drv, d, v, r_f, l_f, v_b, cap, reading, periods=PERIODS, n=30):
     def terminal(i_m, v_src, r):        # the coil's current driven by v_src through r (A)
         return i_m if r_e is None else (v_src + r_e * i_m) / (r + r_e)
 
+    def branch(i_m):                    # the magnetising branch's inductance (H)
+        return ind if ld is None else l_f * float(ld(max(i_m, 0.0)))
+
     def rate(i_m, v_src, r):            # di_m/dt (A/s)
-        if ld is not None:
-            return (v_src - r * i_m) / (l_f * float(ld(max(i_m, 0.0))))
-        return (v_src - r * i_m) / ind if r_e is None else r_e * (terminal(i_m, v_src, r) - i_m) / ind
+        return ((v_src - r * i_m) if r_e is None else r_e * (terminal(i_m, v_src, r) - i_m)) / branch(i_m)
     trip = d["boost"]["threshold_a"] / reading
     _, duty = firmware_lookup(d, drv, v)
     period = 1 / d["hold"]["frequency_hz"]
@@ -131,7 +133,7 @@ def _simulate(drv, d, v, r_f, l_f, v_b, cap, reading, periods=PERIODS, n=30):
                 if on:
                     return [rate(y[0], v, r_on)]
                 if r_e is not None and terminal(y[0], -drv.freewheel.diode_drop, r_off) <= 0:
-                    return [-r_e * y[0] / ind]      # the diode blocks: the flux's current through R_e
+                    return [-r_e * y[0] / branch(y[0])]     # the diode blocks: the flux's current through R_e
                 return [rate(y[0], -drv.freewheel.diode_drop, r_off)]
 
             def zero(_t, y):

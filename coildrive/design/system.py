@@ -313,7 +313,18 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             peak_end["a"] = float(_branch_rise(branch["peak_s"], branch))
             if r_eddy is not None:
                 r_slow = r_slow_eddy
-            if curve is not None:
+            if curve is not None and r_eddy is not None:
+                # the magnetising flux's tail from the end current (the terminal current leads
+                # the magnetising one while it rises), the terminal current on it, as an eddy
+                # curve branch's (below)
+                tail = _eddy_curve_tail(curve, hi, r_on, r_eddy, d.boost.end_current_max_a,
+                                        float(np.max(orbit.i_max)), bottom)
+                tail.pop("top_a")       # (the branch's: the converter and the coil's top; its tail's start below)
+                branch.update(tail)
+                hold_top, bottom = branch.pop("hold_top_a"), 0.0
+                i_pe = np.array([branch.pop("excess_a")])
+                ends = np.array([l_min, branch.pop("l_max_h") * float(scale.max())])
+            elif curve is not None:
                 # the tail on the flux from the end current, as a curve branch's (below)
                 ripple = hi * (d.hold.thresholds.delay_s if current is not None else float(np.max(duty_hi)) / f)
                 tail = flux_bound.tail_excess(curve, d.boost.end_current_max_a, hold_top,
@@ -560,7 +571,9 @@ def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bott
     ``boost_rise_current_a``, :func:`~coildrive.model.flux_bound.rise_table`), and under a
     voltage-mode hold the period map on the flux is increasing and contracting too, each
     period adding at most ``V T / s``: ``coil_top_a`` the larger of the hold's top and
-    ``psi^-1(psi(I_end) + 2 V T / s)``.
+    ``psi^-1(psi(I_end) + 2 V T / s)``. With an eddy term on the curve both on the
+    magnetising flux through the Thevenin pair (``V_th = V R_e/(R + R_e)``, ``R_th``), the
+    terminal current ``(V + R_e i_m)/(R + R_e)`` on it.
 
     With a moving armature (a linear coil, ``l_min`` its lowest seated inductance) that may
     still fly in the hold (``flight = L_c/L_open > 1``, :func:`_hold_flight`) the PWM's
@@ -577,6 +590,13 @@ def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bott
     period = 1.0 / d.hold.frequency_hz
     if d.hold.mode == "current":
         coil_top = hold_top + max(0.0, i_end - bottom)
+    elif curve is not None and r_eddy is not None:
+        # the magnetising flux on the Thevenin pair: a period adds at most V_th T / s
+        c = curve.curve
+        v_th = v_hi * r_eddy / (r_on + r_eddy)
+        reach = c.current_of(float(c.psi(i_end)) + 2.0 * v_th * period / float(curve.scale))
+        top_m = max(hold_top, float(np.asarray(reach).ravel()[0]))
+        coil_top = max(hold_top, (v_hi + r_eddy * top_m) / (r_on + r_eddy))
     elif curve is not None:
         c = curve.curve
         reach = c.current_of(float(c.psi(i_end)) + 2.0 * v_hi * period / float(curve.scale))
@@ -597,8 +617,14 @@ def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bott
     if r_eddy is not None:
         out["eddy_resistance_ohm"] = r_eddy
     if curve is not None:
-        times, currents = flux_bound.rise_table(curve, bst.boost_max_v, r_on,
-                                                d.pull_in.peak_ticks / drive.board.tick.rate)
+        peak_s = d.pull_in.peak_ticks / drive.board.tick.rate
+        if r_eddy is None:
+            times, currents = flux_bound.rise_table(curve, bst.boost_max_v, r_on, peak_s)
+        else:       # the terminal current on the magnetising rise through the Thevenin pair
+            v_b = bst.boost_max_v
+            times, i_m = flux_bound.rise_table(curve, v_b * r_eddy / (r_on + r_eddy), r_on * r_eddy / (r_on + r_eddy),
+                                               peak_s)
+            currents = (v_b + r_eddy * np.asarray(i_m, float)) / (r_on + r_eddy)
         out.update({"boost_rise_time_s": [float(x) for x in times],
                     "boost_rise_current_a": [float(x) for x in currents]})
     if bst.capacitance_f > 0:
@@ -772,17 +798,25 @@ def _eddy_curve_branch(coil, v: float, r: float, r_e: float, peak_s: float, top_
     highest top, ``bottom_m`` the trip ``J``)."""
     v_th, r_th = v * r_e / (r + r_e), r * r_e / (r + r_e)
     times, i_m = flux_bound.rise_table(coil, v_th, r_th, peak_s)
-    curve = coil.curve
+    out = _eddy_curve_tail(coil.curve, v, r, r_e, float(i_m[-1]), top_m, bottom_m, ripple)
+    out.update({"rise_time_s": [float(x) for x in times],
+                "rise_current_a": [float(x) for x in (v + r_e * i_m) / (r + r_e)]})
+    out["top_a"] = max(out["top_a"], float((v + r_e * i_m[-1]) / (r + r_e)))
+    return out
+
+
+def _eddy_curve_tail(curve, v: float, r: float, r_e: float, i_from: float, top_m: float, bottom_m: float,
+                     ripple: float | None = None) -> dict:
+    """The tail keys of :func:`_eddy_curve_branch` (``curve`` unscaled) after a peak whose
+    magnetising current ends at most at ``i_from`` A: ``tail_flux_wb``/``tail_current_a``
+    (the terminal current), ``top_a`` its reach, ``hold_top_a``, ``excess_a``, ``l_max_h``
+    and ``eddy_resistance_ohm``."""
     spread = float(curve.psi(top_m)) - float(curve.psi(min(bottom_m, top_m))) if ripple is None else ripple
-    tail = flux_bound.tail_excess(curve, float(i_m[-1]), top_m, spread)
+    tail = flux_bound.tail_excess(curve, i_from, top_m, spread)
     deltas, cur = tail["table"]
     terminal = np.maximum(cur, (v + r_e * cur) / (r + r_e))
-
-    def listed(x):
-        return [float(y) for y in x]
-    return {"rise_time_s": listed(times), "rise_current_a": listed((v + r_e * i_m) / (r + r_e)),
-            "eddy_resistance_ohm": r_e, "tail_flux_wb": listed(deltas), "tail_current_a": listed(terminal),
-            "top_a": max(float(terminal[-1]), float((v + r_e * i_m[-1]) / (r + r_e))),
+    return {"eddy_resistance_ohm": r_e, "tail_flux_wb": [float(x) for x in deltas],
+            "tail_current_a": [float(x) for x in terminal], "top_a": float(terminal[-1]),
             "hold_top_a": float(terminal[0]), "excess_a": tail["excess_a"], "l_max_h": tail["l_max_h"]}
 
 
@@ -1275,18 +1309,19 @@ def _refuse(system: System, ch) -> None:
     too), on one switch or a full bridge, under a voltage-mode (fixed, supply-table or
     closed-loop) hold or a current-mode one, or a latching coil (its pulses from the boost
     too), or a boosted peak (a linear coil with a moving armature, an eddy term or both; a
-    curve with neither). Anything else is refused in one line: a moving armature over two
-    curves with an eddy term or a boosted peak (its bound takes the coil's own terminal
-    voltage), a boosted peak with an eddy term on a curve (the eddy term's bound takes a
-    linear coil), and a boosted peak or pulses without ``supply.boost_efficiency`` (its
-    converter's draw)."""
+    curve, with an eddy term too). Anything else is refused in one line: a moving armature
+    over two curves with an eddy term or a boosted peak (its bound takes the coil's own
+    terminal voltage), a boosted peak with an eddy term on a curve under a current-mode
+    hold (its comparator's tail on the magnetising flux is not built), and a boosted peak
+    or pulses without ``supply.boost_efficiency`` (its converter's draw)."""
     d = ch.drive
     why = None
     if d.coil.flux_current and d.armature is not None and (d.coil.eddy_resistance or d.supply.boosted):
         key, why = "armature", ("a moving armature over flux-linkage curves with an eddy-current term or a "
                                 "boosted peak")
-    elif d.supply.boosted and d.coil.eddy_resistance and d.coil.flux_current:
-        key, why = "supply.boost", "a boosted peak with an eddy-current term on a flux-linkage curve"
+    elif d.supply.boosted and d.coil.eddy_resistance and d.coil.flux_current and d.hold.mode == "current":
+        key, why = "hold.mode", ("a boosted peak with an eddy-current term on a flux-linkage curve under a "
+                                 "current-mode hold")
     elif d.supply.boosted and not d.supply.boost_efficiency > 0:
         raise InputError(d.source, "supply.boost_efficiency", f"missing: channel {ch.name!r} of {system.source} "
                          "has a boosted peak or pulses, whose converter draws from the shared rail, expected its "
@@ -1299,7 +1334,7 @@ def _refuse(system: System, ch) -> None:
                          "or current-mode hold, or a latching coil (its pulses from the boost too); a boosted peak "
                          "on a linear "
                          "coil (an eddy term, an [armature], both or neither) or on a curve "
-                         "with neither an eddy term nor an [armature]")
+                         "without an [armature] (an eddy term only under a voltage-mode or closed-loop hold)")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:
