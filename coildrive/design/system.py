@@ -23,7 +23,7 @@
 
 A channel is a linear coil, with a moving armature (:mod:`coildrive.model.armature_bound`),
 an eddy term or both, or a flux-linkage curve (:mod:`coildrive.model.flux_bound`; with a
-moving armature over two curves too, :func:`_gap_rise`), on one
+moving armature over two curves too, :func:`_gap_rise`, an eddy term too), on one
 switch or a full bridge, or a latching coil (its pulses: :func:`_latch_bound_params`), or a
 boosted peak (its converter's draw: :func:`_boost_keys`; with a moving armature on a linear
 coil: :func:`_boost_armature_keys`); what is not is refused in one line (:func:`_refuse`). A rail with a curve, an eddy term or a bridge on it takes its droop
@@ -216,7 +216,8 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
     supply and readable duty, the hottest coil of the design's corners). With a moving
     armature the peak's rise is :func:`_armature_rise`'s (the open coil's while the armature
     is proved to only close) and the tail is the seated coil's, one part; over two curves
-    :func:`_gap_rise`'s, the tail the seated curve's. A boosted peak's: :func:`_boost_keys`
+    :func:`_gap_rise`'s, the tail the seated curve's (with an eddy term both on the
+    magnetising flux behind the loop's Thevenin pair). A boosted peak's: :func:`_boost_keys`
     (with a moving armature :func:`_boost_armature_keys`). A latching coil's:
     :func:`_latch_bound_params`."""
     if is_latch(d):
@@ -333,7 +334,7 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
                                "tail_current_a": [float(x) for x in tail["table"][1]]})
                 i_pe = np.array([bottom + tail["excess_a"]])
                 ends = np.array([l_min, tail["l_max_h"] * float(scale.max())])
-        elif drive.armature is not None and r_eddy is not None:
+        elif drive.armature is not None and r_eddy is not None and curve is None:
             # the armature's bound on the magnetising current, which sees the Thevenin pair
             # (the closing window and the earliest start on it); the rail the terminal current
             # on it; the tail the eddy term's (below) on the seated coil: one part
@@ -360,6 +361,16 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
                 top_m = float(np.max(orbit.i_max))
             branch.update(_eddy_curve_branch(flux.FluxCoil(curve, float(scale.min())), hi, r_on, r_eddy, tp,
                                              top_m, bottom, ripple))
+            if drive.armature is not None:
+                # a moving armature over two curves (``curve`` the seated one): the gap's rise
+                # bound on the magnetising flux through the Thevenin pair (as _gap_rise's on the
+                # coil's own loop), the terminal current on it; the tail the seated curve's
+                # from the seated rise's end (the flux is never above it, whatever the gap)
+                times, i_m = _gap_rise(drive.armature, curve, scale, hi * r_eddy / (r_on + r_eddy),
+                                       r_on * r_eddy / (r_on + r_eddy), tp)
+                rise = (hi + r_eddy * np.asarray(i_m, float)) / (r_on + r_eddy)
+                branch.update({"rise_time_s": [float(x) for x in times], "rise_current_a": [float(x) for x in rise],
+                               "top_a": max(branch["top_a"], float(rise[-1]))})
             r_slow = r_slow_eddy
             hold_top, bottom = branch.pop("hold_top_a"), 0.0
             i_pe = np.array([branch.pop("excess_a")])
@@ -1310,15 +1321,14 @@ def _refuse(system: System, ch) -> None:
     closed-loop) hold or a current-mode one, or a latching coil (its pulses from the boost
     too), or a boosted peak (a linear coil with a moving armature, an eddy term or both; a
     curve, with an eddy term too). Anything else is refused in one line: a moving armature
-    over two curves with an eddy term or a boosted peak (its bound takes the coil's own
-    terminal voltage), a boosted peak with an eddy term on a curve under a current-mode
+    over two curves with a boosted peak (the single-channel design refuses it too), a
+    boosted peak with an eddy term on a curve under a current-mode
     hold (its comparator's tail on the magnetising flux is not built), and a boosted peak
     or pulses without ``supply.boost_efficiency`` (its converter's draw)."""
     d = ch.drive
     why = None
-    if d.coil.flux_current and d.armature is not None and (d.coil.eddy_resistance or d.supply.boosted):
-        key, why = "armature", ("a moving armature over flux-linkage curves with an eddy-current term or a "
-                                "boosted peak")
+    if d.coil.flux_current and d.armature is not None and d.supply.boosted:
+        key, why = "armature", "a moving armature over flux-linkage curves with a boosted peak"
     elif d.supply.boosted and d.coil.eddy_resistance and d.coil.flux_current and d.hold.mode == "current":
         key, why = "hold.mode", ("a boosted peak with an eddy-current term on a flux-linkage curve under a "
                                  "current-mode hold")
@@ -1329,7 +1339,7 @@ def _refuse(system: System, ch) -> None:
     if why is not None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
                          "in a system yet; expected a linear coil (with an [armature], an eddy term or both) "
-                         "or a flux-linkage curve (with an eddy term, or with an [armature] and no eddy term), "
+                         "or a flux-linkage curve (with an eddy term, an [armature] or both), "
                          "on one switch or a full bridge under a voltage-mode fixed, supply-table, closed-loop "
                          "or current-mode hold, or a latching coil (its pulses from the boost too); a boosted peak "
                          "on a linear "
