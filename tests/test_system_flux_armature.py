@@ -110,17 +110,11 @@ def _peak(fresh, arm, scale, v, r, peak):
     return np.concatenate(ts), np.concatenate([np.asarray(x, float) for x in cs]), seated
 
 
-def test_gap_bound_never_below_the_simulated_worst(system):
-    """The purge valve's armature over its two curves (scipy, written afresh: module
-    docstring) at the lowest and highest supply and just below a middle peak-table step,
-    the peak the firmware picks there, the coil cold (ambient.min: the most current), R
-    and L at both tolerance ends, then 12 periods of its hold on the seated curve: the
-    channel's bound (its largest branch readable there) is never below the simulated
-    current, and over the peak it is within 35 % of the simulated worst (the bound takes
-    the top supply of each peak's reading range, 21.3 V at 20 V, and while the armature
-    closes, at each current, the least incremental inductance the blend can have)."""
+def _purge(system):
+    """``(channel, drive, Fresh, seated L_d(i), hold period s)`` of the system's last
+    purge valve: its curves written afresh (``Fresh``), the seated curve's incremental
+    inductance straight past the table's end."""
     ch = system["channels"][-1]
-    d = ch["design"]
     drv = load_drive(ch["drive_file"], BOARD)
     c = drv.coil
     fresh = Fresh((c.flux_current, c.flux_linkage), (c.seated_current, c.seated_linkage), drv.armature.stroke)
@@ -130,8 +124,20 @@ def test_gap_bound_never_below_the_simulated_worst(system):
 
     def ld(i):
         return np.where(i <= top, seated_ld(np.minimum(i, top)), slope)
-    tol_r, tol_l = c.resistance_tolerance, c.inductance_tolerance
-    period = 1 / d["hold"]["frequency_hz"]
+    return ch, drv, fresh, ld, 1 / ch["design"]["hold"]["frequency_hz"]
+
+
+def test_gap_bound_never_below_the_simulated_worst(system):
+    """The purge valve's armature over its two curves (scipy, written afresh: module
+    docstring) at the lowest and highest supply and just below a middle peak-table step,
+    the peak the firmware picks there, the coil cold (ambient.min: the most current), R
+    and L at both tolerance ends, then 12 periods of its hold on the seated curve: the
+    channel's bound (its largest branch readable there) is never below the simulated
+    current, and over the peak it is within 35 % of the simulated worst (the bound takes
+    the top supply of each peak's reading range, 21.3 V at 20 V, and while the armature
+    closes, at each current, the least incremental inductance the blend can have)."""
+    ch, drv, fresh, ld, period = _purge(system)
+    tol_r, tol_l = drv.coil.resistance_tolerance, drv.coil.inductance_tolerance
     ratios = []
     for v, peak, duty, branches in supply_corners(ch, drv):
         worst = 0.0
@@ -183,19 +189,8 @@ def test_eddy_gap_bound_never_below_the_simulated_current(eddy_system):
     worst."""
     from test_system_flux_combined import _eddy_run
 
-    ch = eddy_system[0]["channels"][-1]
-    d = ch["design"]
-    drv = load_drive(ch["drive_file"], BOARD)
-    c, r_e = drv.coil, drv.coil.eddy_resistance
-    fresh = Fresh((c.flux_current, c.flux_linkage), (c.seated_current, c.seated_linkage), drv.armature.stroke)
-    seated_ld = fresh.curves["c"].derivative()
-    top = fresh.top["c"]
-    slope = float(seated_ld(top))
-
-    def ld(i):
-        return np.where(i <= top, seated_ld(np.minimum(i, top)), slope)
-    tol_r, tol_l = c.resistance_tolerance, c.inductance_tolerance
-    period = 1 / d["hold"]["frequency_hz"]
+    ch, drv, fresh, ld, period = _purge(eddy_system[0])
+    tol_r, tol_l, r_e = drv.coil.resistance_tolerance, drv.coil.inductance_tolerance, drv.coil.eddy_resistance
     ratios = []
     for v, peak, duty, branches in supply_corners(ch, drv):
         worst = 0.0
