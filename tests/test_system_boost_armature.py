@@ -21,6 +21,7 @@ Outside references, named beside each check:
   R_e (i - i_m)`` and the terminal current ``i = (v + R_e i_m)/(R + R_e)`` while it
   conducts;
 * copper R(T): IEC 60028, alpha = 0.00393 /K;
+* the board header compiled by gcc -Wall -Wextra -Werror -pedantic;
 * the rail's bound written afresh from docs/design-method.md ("Several channels"), swept at
   1e5 points with numpy.
 """
@@ -34,7 +35,8 @@ import pytest
 from typer.testing import CliRunner
 
 from conftest import BOARDS
-from rail_reference import assert_staggered_within_limit, firmware_lookup, linear_tail, readable, simulate_csv
+from rail_reference import (assert_staggered_within_limit, firmware_lookup, header_holds, linear_tail, readable,
+                            simulate_csv)
 
 from test_system_armature import ARMATURE, _rise
 from test_system_boost import _branch as boost_branch, _folder
@@ -64,7 +66,7 @@ def doc(request, tmp_path_factory):
     if request.param == "bounce":
         text += "restitution = 0.5\n"
     purge.write_text(text)
-    r = CliRunner().invoke(app, ["design", str(path), "--json"])
+    r = CliRunner().invoke(app, ["design", str(path), "--json", "--header", str(folder / "board.h")])
     assert r.exit_code == 0, r.output
     return json.loads(r.stdout)["system"], path, request.param
 
@@ -247,6 +249,18 @@ def test_staggered_total_never_above_the_limit(doc):
     """A dense sweep (1e5 points, numpy) of the rail's bound written afresh: never above the
     limit with the stagger found."""
     assert_staggered_within_limit(doc[0], _branch)
+
+
+@pytest.mark.parametrize("doc", ["linear"], indirect=True)
+def test_header_compiles_with_the_stagger(doc, tmp_path):
+    """``design SYSTEM.toml --header``: the boosted purge valves' threshold codes under their
+    prefixes and purge2 started the design's stagger after purge1, compiled with gcc -Wall
+    -Wextra -Werror -pedantic."""
+    system, path, _ = doc
+    text = (path.parent / "board.h").read_text()
+    ch = system["channels"]
+    header_holds(tmp_path, text, f"PURGE2_BOOST_THRESHOLD_CODE == {ch[-1]['design']['boost']['threshold_code']} && "
+                                 f"PURGE2_START_OFFSET_TICKS - PURGE1_START_OFFSET_TICKS == {system['stagger_ticks']}")
 
 
 @pytest.mark.parametrize("doc", ["linear"], indirect=True)

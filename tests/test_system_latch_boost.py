@@ -14,6 +14,7 @@ Outside references, named beside each check:
   decays through its own freewheel path, off the rail; the converter recharges the
   capacitor, ``C u du/dt = P``, closed form;
 * copper R(T): IEC 60028, alpha = 0.00393 /K;
+* the board header compiled by gcc -Wall -Wextra -Werror -pedantic;
 * the rail's bound written afresh from docs/design-method.md, swept at 1e5 points.
 """
 
@@ -26,7 +27,7 @@ import pytest
 from typer.testing import CliRunner
 
 from conftest import BOARDS
-from rail_reference import assert_staggered_within_limit, manifold_copy, readable, simulate_csv
+from rail_reference import assert_staggered_within_limit, header_holds, manifold_copy, readable, simulate_csv
 
 from test_system_boost import _branch
 from test_system_latch import CIRCUITS, LATCH
@@ -52,7 +53,7 @@ def doc(tmp_path_factory):
     text = text.replace("sink = true\n", BOOST).replace("margin = 1.5\n", "margin = 1.5\ncurrent_margin = 1.2\n")
     (folder / "purge-latch-24v.toml").write_text(text)
     path.write_text(path.read_text().replace('"purge-valve-24v.toml"', '"purge-latch-24v.toml"'))
-    r = CliRunner().invoke(app, ["design", str(path), "--json"])
+    r = CliRunner().invoke(app, ["design", str(path), "--json", "--header", str(folder / "board.h")])
     assert r.exit_code == 0, r.output
     return json.loads(r.stdout)["system"], path
 
@@ -123,6 +124,19 @@ def test_staggered_total_never_above_the_limit(doc):
     """A dense sweep (1e5 points, numpy) of the rail's bound written afresh: never above the
     limit with the stagger found."""
     assert_staggered_within_limit(doc[0], _branch)
+
+
+def test_header_has_the_boosted_pulses_and_compiles(doc, tmp_path):
+    """``design SYSTEM.toml --header``: the latching channels' pulses from the boost under
+    their prefixes (each pulse's threshold code, the boosted flag), purge2 starting its
+    stagger after purge1, compiled with gcc -Wall -Wextra -Werror -pedantic."""
+    system, path = doc
+    text = (path.parent / "board.h").read_text()
+    codes = {p["name"]: p["boost"]["threshold_code"] for p in system["channels"][-1]["design"]["latch"]["pulses"]}
+    for name in ("PURGE1", "PURGE2"):
+        assert f"#define {name}_LATCH_BOOSTED " in text
+    header_holds(tmp_path, text, f"PURGE2_SET_THRESHOLD_CODE == {codes['set']} && PURGE2_RESET_THRESHOLD_CODE == "
+                                 f"{codes['reset']} && PURGE2_START_OFFSET_TICKS > PURGE1_START_OFFSET_TICKS")
 
 
 def test_simulate_draws_the_converter(doc, tmp_path):
