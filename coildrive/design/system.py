@@ -318,8 +318,17 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
                 # the magnetising flux's tail from the end current (the terminal current leads
                 # the magnetising one while it rises), the terminal current on it, as an eddy
                 # curve branch's (below)
-                tail = _eddy_curve_tail(curve, hi, r_on, r_eddy, d.boost.end_current_max_a,
-                                        float(np.max(orbit.i_max)), bottom)
+                if current is not None:
+                    # under the comparator: the on-times' magnetising top and trip (J), the flux
+                    # rising by at most V_th delay / s after the hand-over, as the curve's below
+                    top_m, j = _eddy_current_top(d.hold.thresholds, top_cold, envelope.reading_factors(drive)[0])
+                    top_m, bottom = float(np.max(top_m)), float(np.min(j))
+                    tail = _eddy_curve_tail(curve, hi, r_on, r_eddy, d.boost.end_current_max_a, top_m, bottom,
+                                            hi * r_eddy / (r_on + r_eddy) * d.hold.thresholds.delay_s
+                                            / float(scale.min()))
+                else:
+                    tail = _eddy_curve_tail(curve, hi, r_on, r_eddy, d.boost.end_current_max_a,
+                                            float(np.max(orbit.i_max)), bottom)
                 tail.pop("top_a")       # (the branch's: the converter and the coil's top; its tail's start below)
                 branch.update(tail)
                 hold_top, bottom = branch.pop("hold_top_a"), 0.0
@@ -584,7 +593,9 @@ def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bott
     period adding at most ``V T / s``: ``coil_top_a`` the larger of the hold's top and
     ``psi^-1(psi(I_end) + 2 V T / s)``. With an eddy term on the curve both on the
     magnetising flux through the Thevenin pair (``V_th = V R_e/(R + R_e)``, ``R_th``), the
-    terminal current ``(V + R_e i_m)/(R + R_e)`` on it.
+    terminal current ``(V + R_e i_m)/(R + R_e)`` on it; under a current-mode hold the
+    flux after the hand-over rises by at most ``V_th delay / s`` before the comparator
+    turns the switch off, later on-times ending at the hold's top.
 
     With a moving armature (a linear coil, ``l_min`` its lowest seated inductance) that may
     still fly in the hold (``flight = L_c/L_open > 1``, :func:`_hold_flight`) the PWM's
@@ -599,7 +610,16 @@ def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bott
     v_low = max(s.min - reading_droop_v, 1e-3)
     i_end = bst.end_current_max_a
     period = 1.0 / d.hold.frequency_hz
-    if d.hold.mode == "current":
+    if d.hold.mode == "current" and curve is not None and r_eddy is not None:
+        # the comparator turns the switch off within the delay of a reading above its
+        # threshold: after the hand-over the magnetising flux rises by at most V_th delay / s
+        # from I_end, then the on-times end at most at the hold's top
+        c = curve.curve
+        v_th = v_hi * r_eddy / (r_on + r_eddy)
+        reach = float(np.asarray(c.current_of(float(c.psi(i_end)) + v_th * d.hold.thresholds.delay_s
+                                               / float(curve.scale))).ravel()[0])
+        coil_top = max(hold_top, reach, (v_hi + r_eddy * reach) / (r_on + r_eddy))
+    elif d.hold.mode == "current":
         coil_top = hold_top + max(0.0, i_end - bottom)
     elif curve is not None and r_eddy is not None:
         # the magnetising flux on the Thevenin pair: a period adds at most V_th T / s
@@ -1316,22 +1336,17 @@ def rail_curves(result: SystemResult, points: int = 6000) -> list[dict]:
 
 def _refuse(system: System, ch) -> None:
     """What the rail's current bound is made for: a linear coil (with a moving armature,
-    an eddy term or both) or a flux-linkage curve (with a moving armature over two curves
-    too), on one switch or a full bridge, under a voltage-mode (fixed, supply-table or
+    an eddy term or both) or a flux-linkage curve (with an eddy term, a moving armature
+    over two curves, or both), on one switch or a full bridge, under a voltage-mode (fixed, supply-table or
     closed-loop) hold or a current-mode one, or a latching coil (its pulses from the boost
     too), or a boosted peak (a linear coil with a moving armature, an eddy term or both; a
     curve, with an eddy term too). Anything else is refused in one line: a moving armature
-    over two curves with a boosted peak (the single-channel design refuses it too), a
-    boosted peak with an eddy term on a curve under a current-mode
-    hold (its comparator's tail on the magnetising flux is not built), and a boosted peak
-    or pulses without ``supply.boost_efficiency`` (its converter's draw)."""
+    over two curves with a boosted peak (the single-channel design refuses it too), and a
+    boosted peak or pulses without ``supply.boost_efficiency`` (its converter's draw)."""
     d = ch.drive
     why = None
     if d.coil.flux_current and d.armature is not None and d.supply.boosted:
         key, why = "armature", "a moving armature over flux-linkage curves with a boosted peak"
-    elif d.supply.boosted and d.coil.eddy_resistance and d.coil.flux_current and d.hold.mode == "current":
-        key, why = "hold.mode", ("a boosted peak with an eddy-current term on a flux-linkage curve under a "
-                                 "current-mode hold")
     elif d.supply.boosted and not d.supply.boost_efficiency > 0:
         raise InputError(d.source, "supply.boost_efficiency", f"missing: channel {ch.name!r} of {system.source} "
                          "has a boosted peak or pulses, whose converter draws from the shared rail, expected its "
@@ -1342,9 +1357,8 @@ def _refuse(system: System, ch) -> None:
                          "or a flux-linkage curve (with an eddy term, an [armature] or both), "
                          "on one switch or a full bridge under a voltage-mode fixed, supply-table, closed-loop "
                          "or current-mode hold, or a latching coil (its pulses from the boost too); a boosted peak "
-                         "on a linear "
-                         "coil (an eddy term, an [armature], both or neither) or on a curve "
-                         "without an [armature] (an eddy term only under a voltage-mode or closed-loop hold)")
+                         "on a linear coil (an eddy term, an [armature], both or neither) or on a curve (an eddy "
+                         "term or not) without an [armature]")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:
