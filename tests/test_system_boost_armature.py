@@ -75,7 +75,8 @@ def _branch(t, b):
     """A branch written afresh: a boosted armature's -- the converter plus the coil, the
     open coil's rise from ``boost_v`` up to ``closing_s`` then ``(L_c/L_open) V/R (1 -
     exp(-t R/L_c))`` (with an eddy term the magnetising current's through the Thevenin
-    pair, the terminal current ``(V + R_e i_m)/(R + R_e)`` on it), never above
+    pair, and the larger of it and the terminal current ``(V + R_e i_m)/(R + R_e)`` on it),
+    never above
     ``coil_top_a``, to ``peak_s``; then the seated tail plus the converter until
     ``converter_until_s`` -- or any other channel's (tests/test_system_boost.py)."""
     if "closing_s" not in b or "boost_v" not in b:
@@ -84,8 +85,8 @@ def _branch(t, b):
     th = {**b, "supply_v": v} if r_e is None else {**b, "supply_v": v * r_e / (r + r_e),
                                                     "resistance_ohm": r * r_e / (r + r_e)}
     coil = _rise(np.maximum(t, 0), th)
-    if r_e is not None:
-        coil = (v + r_e * coil) / (r + r_e)
+    if r_e is not None:     # (off in the hold the terminal current is below the magnetising one)
+        coil = np.maximum(coil, (v + r_e * coil) / (r + r_e))
     rise = b["converter_a"] + np.minimum(coil, b["coil_top_a"])
     tail = linear_tail(t, b) + np.where(t < b["converter_until_s"], b["converter_a"], 0.0)
     return np.where(t < 0, 0, np.where(t <= b["peak_s"], rise, tail))

@@ -757,6 +757,8 @@ def _boost_rise(t, b: dict):
         coil = flux_bound.table_current(t, b["boost_rise_time_s"], b["boost_rise_current_a"])
     elif "eddy_resistance_ohm" in b:   # the terminal current on the magnetising current's rise
         coil = _eddy_terminal_rise(t, {**b, "supply_v": b["boost_v"]})
+        if "closing_s" in b:           # (off in the hold, through a clamp, at most the magnetising one)
+            coil = np.maximum(coil, _magnetising_rise(t, {**b, "supply_v": b["boost_v"]}))
     elif "closing_s" in b:             # a moving armature's (_boost_armature_keys)
         coil = armature_bound.peak_rise(t, b["boost_v"], b["resistance_ohm"], b["inductance_h"],
                                         b["closed_inductance_h"], b["flux_ratio"], b["closing_s"])
