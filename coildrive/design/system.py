@@ -673,10 +673,13 @@ def _hold_flight(d) -> float:
     """The factor a boosted peak's hold bound takes for an armature that may still move in
     the hold: ``L_c/L_open`` where it is not at rest on the seat within the peak at every
     corner of the design (:attr:`~coildrive.design.result.ArmatureResult.seated_in_peak_corners`;
-    a bouncing seat's rebounds included), else 1 (no armature, or seated before every
+    a bouncing seat's rebounds included) or not proved to stay there
+    (:func:`_proved_seated`), else 1 (no armature, or seated for good before every
     hand-over)."""
     a = d.armature
-    if d.drive.armature is None or a is None or a.seated_in_peak_corners == a.corners:
+    if d.drive.armature is None or a is None:
+        return 1.0
+    if a.seated_in_peak_corners == a.corners and _proved_seated(d):
         return 1.0
     return a.inductance_closed_h / a.inductance_open_h
 
