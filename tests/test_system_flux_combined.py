@@ -187,10 +187,11 @@ def eddy_doc(tmp_path_factory):
     return doc, path.parent / "purge-valve-24v.toml", result
 
 
-def _eddy_run(ld, s, v, r_on, r_off, v_fw, r_e, t_peak, duty, period, periods=10):
+def _eddy_run(ld, s, v, r_on, r_off, v_fw, r_e, t_peak, duty, period, periods=10, i_m0=None):
     """``(times, terminal currents)``: the peak from rest, then ``periods`` PWM periods
     (scipy LSODA on the magnetising current; off, the diode blocks at zero terminal
-    current)."""
+    current); ``i_m0``: the periods alone from ``t_peak`` s, the magnetising current then
+    ``i_m0`` A (the peak run elsewhere)."""
     from scipy.integrate import solve_ivp
 
     def terminal(i_m, on):
@@ -198,8 +199,8 @@ def _eddy_run(ld, s, v, r_on, r_off, v_fw, r_e, t_peak, duty, period, periods=10
             return (v + r_e * i_m) / (r_on + r_e)
         return np.maximum((r_e * i_m - v_fw) / (r_off + r_e), 0.0)
 
-    ts, cs, i_m = [], [], 0.0
-    bounds = [(0.0, t_peak, True)]
+    ts, cs, i_m = [], [], 0.0 if i_m0 is None else i_m0
+    bounds = [(0.0, t_peak, True)] if i_m0 is None else []
     for m in range(periods):
         t0 = t_peak + m * period
         bounds += [(t0, t0 + duty * period, True), (t0 + duty * period, t0 + period, False)]

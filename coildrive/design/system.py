@@ -23,10 +23,10 @@
 
 A channel is a linear coil, with a moving armature (:mod:`coildrive.model.armature_bound`),
 an eddy term or both, or a flux-linkage curve (:mod:`coildrive.model.flux_bound`; with a
-moving armature over two curves too, :func:`_gap_rise`), on one
+moving armature over two curves too, :func:`_gap_rise`, an eddy term too), on one
 switch or a full bridge, or a latching coil (its pulses: :func:`_latch_bound_params`), or a
-boosted peak without a moving armature (its converter's draw: :func:`_boost_keys`); what
-is not is refused in one line (:func:`_refuse`). A rail with a curve, an eddy term or a bridge on it takes its droop
+boosted peak (its converter's draw: :func:`_boost_keys`; with a moving armature on a linear
+coil: :func:`_boost_armature_keys`); what is not is refused in one line (:func:`_refuse`). A rail with a curve, an eddy term or a bridge on it takes its droop
 from the rail-current bounds (:func:`bus_from_bound`).
 """
 
@@ -216,8 +216,10 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
     supply and readable duty, the hottest coil of the design's corners). With a moving
     armature the peak's rise is :func:`_armature_rise`'s (the open coil's while the armature
     is proved to only close) and the tail is the seated coil's, one part; over two curves
-    :func:`_gap_rise`'s, the tail the seated curve's. A latching
-    coil's: :func:`_latch_bound_params`."""
+    :func:`_gap_rise`'s, the tail the seated curve's (with an eddy term both on the
+    magnetising flux behind the loop's Thevenin pair). A boosted peak's: :func:`_boost_keys`
+    (with a moving armature :func:`_boost_armature_keys`). A latching coil's:
+    :func:`_latch_bound_params`."""
     if is_latch(d):
         return _latch_bound_params(d)
     drive = d.drive
@@ -299,16 +301,40 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             r_low = np.minimum(top_cold.r_on, top_cold.r_off)
             r_slow_eddy = float(np.min(r_eddy * r_low / (r_low + r_eddy)))
         if drive.supply.boosted:
+            flight = _hold_flight(d)
             branch.update(_boost_keys(d, hi, r_on, l_min, hold_top, bottom, reading_droop_v, r_eddy,
-                                      None if curve is None else flux.FluxCoil(curve, float(scale.min()))))
+                                      None if curve is None else flux.FluxCoil(curve, float(scale.min())),
+                                      flight))
+            if drive.armature is not None:
+                branch.update(_boost_armature_keys(d, branch, hi, l_max, flight))
             # with an eddy term the end current (terminal) is above the magnetising one,
             # whose excess decays at the slowest Thevenin rate
             i_pe = np.array([d.boost.end_current_max_a])
             ends = np.array([l_min, l_max])
-            peak_end["a"] = float(_branch_rise(tp, branch))
+            peak_end["a"] = float(_branch_rise(branch["peak_s"], branch))
             if r_eddy is not None:
                 r_slow = r_slow_eddy
-            if curve is not None:
+            if curve is not None and r_eddy is not None:
+                # the magnetising flux's tail from the end current (the terminal current leads
+                # the magnetising one while it rises), the terminal current on it, as an eddy
+                # curve branch's (below)
+                if current is not None:
+                    # under the comparator: the on-times' magnetising top and trip (J), the flux
+                    # rising by at most V_th delay / s after the hand-over, as the curve's below
+                    top_m, j = _eddy_current_top(d.hold.thresholds, top_cold, envelope.reading_factors(drive)[0])
+                    top_m, bottom = float(np.max(top_m)), float(np.min(j))
+                    tail = _eddy_curve_tail(curve, hi, r_on, r_eddy, d.boost.end_current_max_a, top_m, bottom,
+                                            hi * r_eddy / (r_on + r_eddy) * d.hold.thresholds.delay_s
+                                            / float(scale.min()))
+                else:
+                    tail = _eddy_curve_tail(curve, hi, r_on, r_eddy, d.boost.end_current_max_a,
+                                            float(np.max(orbit.i_max)), bottom)
+                tail.pop("top_a")       # (the branch's: the converter and the coil's top; its tail's start below)
+                branch.update(tail)
+                hold_top, bottom = branch.pop("hold_top_a"), 0.0
+                i_pe = np.array([branch.pop("excess_a")])
+                ends = np.array([l_min, branch.pop("l_max_h") * float(scale.max())])
+            elif curve is not None:
                 # the tail on the flux from the end current, as a curve branch's (below)
                 ripple = hi * (d.hold.thresholds.delay_s if current is not None else float(np.max(duty_hi)) / f)
                 tail = flux_bound.tail_excess(curve, d.boost.end_current_max_a, hold_top,
@@ -317,7 +343,7 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
                                "tail_current_a": [float(x) for x in tail["table"][1]]})
                 i_pe = np.array([bottom + tail["excess_a"]])
                 ends = np.array([l_min, tail["l_max_h"] * float(scale.max())])
-        elif drive.armature is not None and r_eddy is not None:
+        elif drive.armature is not None and r_eddy is not None and curve is None:
             # the armature's bound on the magnetising current, which sees the Thevenin pair
             # (the closing window and the earliest start on it); the rail the terminal current
             # on it; the tail the eddy term's (below) on the seated coil: one part
@@ -344,6 +370,16 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
                 top_m = float(np.max(orbit.i_max))
             branch.update(_eddy_curve_branch(flux.FluxCoil(curve, float(scale.min())), hi, r_on, r_eddy, tp,
                                              top_m, bottom, ripple))
+            if drive.armature is not None:
+                # a moving armature over two curves (``curve`` the seated one): the gap's rise
+                # bound on the magnetising flux through the Thevenin pair (as _gap_rise's on the
+                # coil's own loop), the terminal current on it; the tail the seated curve's
+                # from the seated rise's end (the flux is never above it, whatever the gap)
+                times, i_m = _gap_rise(drive.armature, curve, scale, hi * r_eddy / (r_on + r_eddy),
+                                       r_on * r_eddy / (r_on + r_eddy), tp)
+                rise = (hi + r_eddy * np.asarray(i_m, float)) / (r_on + r_eddy)
+                branch.update({"rise_time_s": [float(x) for x in times], "rise_current_a": [float(x) for x in rise],
+                               "top_a": max(branch["top_a"], float(rise[-1]))})
             r_slow = r_slow_eddy
             hold_top, bottom = branch.pop("hold_top_a"), 0.0
             i_pe = np.array([branch.pop("excess_a")])
@@ -388,10 +424,18 @@ def channel_bound_params(d, reading_droop_v: float = 0.0) -> dict:
             # never above the larger of its orbit's top and two periods' rise (_two_period_top)
             cap = max(hold_top, _two_period_top(float(i_pe[0]), hi, r_on, l_min, 1.0 / f))
             branch.update({"tail_cap_a": cap, "top_a": min(cap, hold_top + max(0.0, float(i_pe[0]) - bottom))})
-        branches.append({**branch, "peak_end_a": float(peak_end.get("a", i_pe[0])), "hold_top_a": hold_top,
-                         "excess_a": [max(0.0, float(x) - bottom) for x in i_pe],
+        seated = 1.0
+        if drive.supply.boosted and drive.armature is not None and not _proved_seated(d):
+            # never proved on the seat: the flux's bound over the open coil (_boost_armature_keys)
+            seated = branch["flux_ratio"]
+        branches.append({**branch, "peak_end_a": float(peak_end.get("a", i_pe[0])), "hold_top_a": hold_top * seated,
+                         "excess_a": [seated * max(0.0, float(x) - bottom) for x in i_pe],
                          "tail_inductance_h": [float(x) for x in ends[1:]],
                          "slow_resistance_ohm": r_slow, "pwm_period_s": settle_s})
+        if drive.supply.boosted:
+            # its highest draw (the stagger's proof takes it): the tail may start above the rise
+            b_ = branches[-1]
+            b_["top_a"] = max(b_["top_a"], float(_branch_parts(b_["peak_s"], b_)[1]))
     return {"reading_droop_v": reading_droop_v, **_summary(branches)}
 
 
@@ -414,7 +458,8 @@ def _latch_bound_params(d) -> dict:
     across the switch does it draw the coil's current, which falls at least as
     ``exp(-R_off t/L_max)`` through the release path from the pulse's end (with the
     any-motion bound, the flux linkage does, the current at most its over the open
-    inductance): the excess the pulse's end bound there, else 0."""
+    inductance): the excess the pulse's end bound there, else 0. A pulse from the boost
+    draws its converter's input instead (:func:`_latch_boost_keys`)."""
     from .latch import winding_drive
 
     drive = d.drive
@@ -435,12 +480,46 @@ def _latch_bound_params(d) -> dict:
             branch.update(_armature_rise(wd.armature, v, r_on, l_min, l_max, tp))
             if p.name == "reset":
                 branch["closing_s"] = 0.0
+        if p.boost is not None:
+            branch.update(_latch_boost_keys(d, p, r_on, l_min, tp))
         end = float(_branch_rise(tp, branch))
+        # (from the boost its freewheel is across the winding: config refuses a clamp)
         draws = wd.freewheel.type == "clamp" and not circuit.full_bridge(wd)
         branches.append({**branch, "peak_end_a": end, "hold_top_a": 0.0, "excess_a": [end if draws else 0.0],
                          "tail_inductance_h": [l_max], "slow_resistance_ohm": float(np.min(rel.r_off)),
                          "pwm_period_s": 0.0})
     return {"reading_droop_v": 0.0, **_summary(branches)}
+
+
+def _latch_boost_keys(d, p, r_on: float, l_min: float, pulse_s: float) -> dict:
+    """The keys a latching coil's pulse from the boost adds to its branch
+    (:func:`_latch_bound_params`; docs/design-method.md, "Several channels"): the rail
+    carries the boost converter's input, not the winding's current -- the boost capacitor
+    feeds the winding and the main supply's diode blocks while it stays above the main
+    supply, which the pulse's ``{name}_boost_droop`` check proves at every corner (where
+    that check fails the winding's current is counted too, ``coil_top_a`` its highest end
+    current, as a boosted peak's). With a capacitor the converter draws at most its
+    output ``boost_power`` over ``supply.boost_efficiency`` at ``[supply] min`` from the
+    pulse's start until the energy the pulse took is back (``converter_until_s``: the
+    pulse's shortest interval, its longest real pulse plus the recharge of the most energy
+    it takes; without one the time-out ``pulse_s`` s plus that recharge); with an ideal boost it feeds
+    the winding while the pulse runs, ``V_b,max i / (eta V_min)``, ``i`` at most the rise
+    from the boost at its highest through the coldest loop (``r_on`` ohm, ``l_min`` H)
+    and the highest end current."""
+    s, bst = d.drive.supply, p.boost
+    v_low = max(s.min, 1e-3)
+    i_end = bst.end_current_max_a
+    ok = {c.name: c.ok for c in d.checks}.get(f"{p.name}_boost_droop", False)
+    out = {"boost_v": bst.boost_max_v, "resistance_ohm": r_on, "inductance_h": l_min,
+           "coil_top_a": 0.0 if ok else i_end, "boost_efficiency": s.boost_efficiency}
+    if bst.capacitance_f > 0:
+        converter = bst.power_w / (s.boost_efficiency * v_low)
+        busy = bst.min_interval_s if bst.min_interval_s is not None else pulse_s + (bst.recharge_time_s or 0.0)
+        out.update({"converter_a": converter, "converter_until_s": busy, "top_a": converter + out["coil_top_a"]})
+    else:
+        out.update({"feed_ratio": bst.boost_max_v / (s.boost_efficiency * v_low), "feed_end_a": i_end})
+        out["top_a"] = max(out["feed_ratio"] * i_end, out["coil_top_a"])
+    return out
 
 
 def _lowest_resistance(d) -> float:
@@ -476,7 +555,7 @@ def _latch_heat(name: str, d) -> dict:
 
 
 def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bottom: float,
-                reading_droop_v: float, r_eddy: float | None = None, curve=None) -> dict:
+                reading_droop_v: float, r_eddy: float | None = None, curve=None, flight: float = 1.0) -> dict:
     """The keys a boosted peak's branch adds (docs/design-method.md, "A boosted peak"): the
     coil's current from switch-on is at most the rise ``V_b/R (1 - exp(-t R/L))`` from the
     boost at its highest through the coldest on-loop (the capacitor's voltage only falls,
@@ -512,30 +591,71 @@ def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bott
     ``boost_rise_current_a``, :func:`~coildrive.model.flux_bound.rise_table`), and under a
     voltage-mode hold the period map on the flux is increasing and contracting too, each
     period adding at most ``V T / s``: ``coil_top_a`` the larger of the hold's top and
-    ``psi^-1(psi(I_end) + 2 V T / s)``."""
+    ``psi^-1(psi(I_end) + 2 V T / s)``. With an eddy term on the curve both on the
+    magnetising flux through the Thevenin pair (``V_th = V R_e/(R + R_e)``, ``R_th``), the
+    terminal current ``(V + R_e i_m)/(R + R_e)`` on it; under a current-mode hold the
+    flux after the hand-over rises by at most ``V_th delay / s`` before the comparator
+    turns the switch off, later on-times ending at the hold's top.
+
+    With a moving armature (a linear coil, ``l_min`` its lowest seated inductance) that may
+    still fly in the hold (``flight = L_c/L_open > 1``, :func:`_hold_flight`) the PWM's
+    falling flux leaves its closing unproved: any motion, the flux linkage ``lambda =
+    L(x) i`` obeys ``dlambda/dt = v - R i <= v - R lambda/L_c`` (``L(x) <= L_c``), so it is
+    at most the seated coil's under the same PWM from the hand-over (``lambda <= L_c
+    I_end``), and ``i <= lambda/L_open``: ``coil_top_a`` is ``flight`` x the seated bound
+    above (with an eddy term the magnetising current's, the terminal current the larger of
+    it and ``(V + R_e i_m)/(R + R_e)``), and never below ``I_end`` (the boosted peak's)."""
     drive = d.drive
     s, bst = drive.supply, d.boost
     v_low = max(s.min - reading_droop_v, 1e-3)
     i_end = bst.end_current_max_a
     period = 1.0 / d.hold.frequency_hz
-    if d.hold.mode == "current":
+    if d.hold.mode == "current" and curve is not None and r_eddy is not None:
+        # the comparator turns the switch off within the delay of a reading above its
+        # threshold: after the hand-over the magnetising flux rises by at most V_th delay / s
+        # from I_end, then the on-times end at most at the hold's top
+        c = curve.curve
+        v_th = v_hi * r_eddy / (r_on + r_eddy)
+        reach = float(np.asarray(c.current_of(float(c.psi(i_end)) + v_th * d.hold.thresholds.delay_s
+                                               / float(curve.scale))).ravel()[0])
+        coil_top = max(hold_top, reach, (v_hi + r_eddy * reach) / (r_on + r_eddy))
+    elif d.hold.mode == "current":
         coil_top = hold_top + max(0.0, i_end - bottom)
+    elif curve is not None and r_eddy is not None:
+        # the magnetising flux on the Thevenin pair: a period adds at most V_th T / s
+        c = curve.curve
+        v_th = v_hi * r_eddy / (r_on + r_eddy)
+        reach = c.current_of(float(c.psi(i_end)) + 2.0 * v_th * period / float(curve.scale))
+        top_m = max(hold_top, float(np.asarray(reach).ravel()[0]))
+        coil_top = max(hold_top, (v_hi + r_eddy * top_m) / (r_on + r_eddy))
     elif curve is not None:
         c = curve.curve
         reach = c.current_of(float(c.psi(i_end)) + 2.0 * v_hi * period / float(curve.scale))
         coil_top = max(hold_top, float(np.asarray(reach).ravel()[0]))
     elif r_eddy is not None:
         top_m = _two_period_top(i_end, v_hi * r_eddy / (r_on + r_eddy), r_on * r_eddy / (r_on + r_eddy), l_min, period)
-        coil_top = max(hold_top, (v_hi + r_eddy * top_m) / (r_on + r_eddy))
+        if flight > 1.0:     # (the orbit's magnetising top is below its terminal one, hold_top)
+            top_m = flight * max(hold_top, top_m)
+            coil_top = max(i_end, top_m, (v_hi + r_eddy * top_m) / (r_on + r_eddy))
+        else:
+            coil_top = max(hold_top, (v_hi + r_eddy * top_m) / (r_on + r_eddy))
     else:
         coil_top = max(hold_top, _two_period_top(i_end, v_hi, r_on, l_min, period))
+        if flight > 1.0:
+            coil_top = max(i_end, flight * coil_top)
     out = {"boost_v": bst.boost_max_v, "resistance_ohm": r_on, "inductance_h": l_min, "coil_top_a": coil_top,
            "boost_efficiency": s.boost_efficiency}
     if r_eddy is not None:
         out["eddy_resistance_ohm"] = r_eddy
     if curve is not None:
-        times, currents = flux_bound.rise_table(curve, bst.boost_max_v, r_on,
-                                                d.pull_in.peak_ticks / drive.board.tick.rate)
+        peak_s = d.pull_in.peak_ticks / drive.board.tick.rate
+        if r_eddy is None:
+            times, currents = flux_bound.rise_table(curve, bst.boost_max_v, r_on, peak_s)
+        else:       # the terminal current on the magnetising rise through the Thevenin pair
+            v_b = bst.boost_max_v
+            times, i_m = flux_bound.rise_table(curve, v_b * r_eddy / (r_on + r_eddy), r_on * r_eddy / (r_on + r_eddy),
+                                               peak_s)
+            currents = (v_b + r_eddy * np.asarray(i_m, float)) / (r_on + r_eddy)
         out.update({"boost_rise_time_s": [float(x) for x in times],
                     "boost_rise_current_a": [float(x) for x in currents]})
     if bst.capacitance_f > 0:
@@ -547,6 +667,74 @@ def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bott
                     "feed_end_a": bst.end_current_max_a})
         out["top_a"] = max(out["feed_ratio"] * bst.end_current_max_a, coil_top)
     return out
+
+
+def _hold_flight(d) -> float:
+    """The factor a boosted peak's hold bound takes for an armature that may still move in
+    the hold: ``L_c/L_open`` where it is not at rest on the seat within the peak at every
+    corner of the design (:attr:`~coildrive.design.result.ArmatureResult.seated_in_peak_corners`;
+    a bouncing seat's rebounds included) or not proved to stay there
+    (:func:`_proved_seated`), else 1 (no armature, or seated for good before every
+    hand-over)."""
+    a = d.armature
+    if d.drive.armature is None or a is None:
+        return 1.0
+    if a.seated_in_peak_corners == a.corners and _proved_seated(d):
+        return 1.0
+    return a.inductance_closed_h / a.inductance_open_h
+
+
+def _proved_seated(d) -> bool:
+    """Whether a boosted armature's design has it on the seat from its window's end on:
+    at rest there at every corner within ``seat_window_s`` (a bouncing seat's rebounds
+    over) and held (its ``armature_seats`` and ``armature_hold`` checks pass): nothing
+    lifts it after that."""
+    ok = {c.name: c.ok for c in d.checks}
+    a = d.armature
+    return (a is not None and a.seated_corners == a.corners and ok.get("armature_seats", False)
+            and ok.get("armature_hold", False))
+
+
+def _boost_armature_keys(d, branch: dict, v_hi: float, lc_high: float, flight: float) -> dict:
+    """The keys a boosted peak's branch with a moving armature adds or replaces
+    (docs/design-method.md, "Several channels"; SI units). ``branch``: its keys so far
+    (:func:`_boost_keys`; ``inductance_h`` the lowest seated inductance), ``v_hi`` V the
+    branch's top supply, ``lc_high`` H the highest seated inductance, ``flight``
+    (:func:`_hold_flight`).
+
+    From switch-on the coil is driven by at most ``V = max(V_b,max, v_hi)`` (the boost's
+    capacitor only falls, then the main supply; off-times drive it down). While the
+    armature only closes its current is at most the open coil's rise
+    (:mod:`~coildrive.model.armature_bound`), proved from its earliest start over the
+    closing window while the source only pushes the flux up -- in the boosted peak, so no
+    later than the hand-over, which comes no sooner than the open coil's fastest rise
+    reaches the threshold ``boost.threshold_a`` (the lowest true current a trip can read:
+    ``t*``; with an eddy term the terminal current, on the magnetising rise through the
+    Thevenin pair); so ``closing_s`` is the earlier of the window's end and ``t*`` (with a
+    bouncing seat, ``restitution``, the window is empty: the earliest start). After
+    it the any-motion bound (the seated coil's flux over the open inductance), which holds
+    under any voltage up to ``V``, PWM or not. Over the whole of it the current is at most
+    ``coil_top_a`` (:func:`_boost_keys` with ``flight``: the end current, or the flux's
+    bound in the hold over the open inductance while the armature may still fly there).
+    Where it may fly in the hold (``flight > 1``) the branch's peak (``peak_s``) lasts to
+    the seat's window (``armature.seat_window_s``) if that is later than the time-out:
+    from there on it is seated and the tail is the seated coil's."""
+    drive, arm = d.drive, d.drive.armature
+    r, l_c = branch["resistance_ohm"], branch["inductance_h"]
+    v = max(branch["boost_v"], v_hi)
+    r_e = branch.get("eddy_resistance_ohm")
+    trip = d.boost.threshold_a
+    if r_e is None:
+        v_rise, r_rise, need = v, r, trip
+    else:       # the magnetising current's rise through the Thevenin pair; the terminal trips
+        v_rise, r_rise, need = v * r_e / (r + r_e), r * r_e / (r + r_e), ((r + r_e) * trip - v) / r_e
+    keys = _armature_rise(arm, v_rise, r_rise, l_c, lc_high, math.inf)
+    frac = need * r / v
+    t_star = 0.0 if need <= 0 else math.inf if frac >= 1 else -keys["inductance_h"] / r_rise * math.log1p(-frac)
+    keys.update({"boost_v": v, "closing_s": min(keys["closing_s"], t_star)})
+    if flight > 1.0:
+        keys["peak_s"] = max(branch["peak_s"], d.armature.seat_window_s)
+    return keys
 
 
 def _two_period_top(i0: float, v: float, r: float, l: float, period: float) -> float:
@@ -572,6 +760,11 @@ def _boost_rise(t, b: dict):
         coil = flux_bound.table_current(t, b["boost_rise_time_s"], b["boost_rise_current_a"])
     elif "eddy_resistance_ohm" in b:   # the terminal current on the magnetising current's rise
         coil = _eddy_terminal_rise(t, {**b, "supply_v": b["boost_v"]})
+        if "closing_s" in b:           # (off in the hold, through a clamp, at most the magnetising one)
+            coil = np.maximum(coil, _magnetising_rise(t, {**b, "supply_v": b["boost_v"]}))
+    elif "closing_s" in b:             # a moving armature's (_boost_armature_keys)
+        coil = armature_bound.peak_rise(t, b["boost_v"], b["resistance_ohm"], b["inductance_h"],
+                                        b["closed_inductance_h"], b["flux_ratio"], b["closing_s"])
     else:
         coil = b["boost_v"] / b["resistance_ohm"] * -np.expm1(-np.clip(t, 0.0, None) * b["resistance_ohm"]
                                                              / b["inductance_h"])
@@ -641,17 +834,25 @@ def _eddy_curve_branch(coil, v: float, r: float, r_e: float, peak_s: float, top_
     highest top, ``bottom_m`` the trip ``J``)."""
     v_th, r_th = v * r_e / (r + r_e), r * r_e / (r + r_e)
     times, i_m = flux_bound.rise_table(coil, v_th, r_th, peak_s)
-    curve = coil.curve
+    out = _eddy_curve_tail(coil.curve, v, r, r_e, float(i_m[-1]), top_m, bottom_m, ripple)
+    out.update({"rise_time_s": [float(x) for x in times],
+                "rise_current_a": [float(x) for x in (v + r_e * i_m) / (r + r_e)]})
+    out["top_a"] = max(out["top_a"], float((v + r_e * i_m[-1]) / (r + r_e)))
+    return out
+
+
+def _eddy_curve_tail(curve, v: float, r: float, r_e: float, i_from: float, top_m: float, bottom_m: float,
+                     ripple: float | None = None) -> dict:
+    """The tail keys of :func:`_eddy_curve_branch` (``curve`` unscaled) after a peak whose
+    magnetising current ends at most at ``i_from`` A: ``tail_flux_wb``/``tail_current_a``
+    (the terminal current), ``top_a`` its reach, ``hold_top_a``, ``excess_a``, ``l_max_h``
+    and ``eddy_resistance_ohm``."""
     spread = float(curve.psi(top_m)) - float(curve.psi(min(bottom_m, top_m))) if ripple is None else ripple
-    tail = flux_bound.tail_excess(curve, float(i_m[-1]), top_m, spread)
+    tail = flux_bound.tail_excess(curve, i_from, top_m, spread)
     deltas, cur = tail["table"]
     terminal = np.maximum(cur, (v + r_e * cur) / (r + r_e))
-
-    def listed(x):
-        return [float(y) for y in x]
-    return {"rise_time_s": listed(times), "rise_current_a": listed((v + r_e * i_m) / (r + r_e)),
-            "eddy_resistance_ohm": r_e, "tail_flux_wb": listed(deltas), "tail_current_a": listed(terminal),
-            "top_a": max(float(terminal[-1]), float((v + r_e * i_m[-1]) / (r + r_e))),
+    return {"eddy_resistance_ohm": r_e, "tail_flux_wb": [float(x) for x in deltas],
+            "tail_current_a": [float(x) for x in terminal], "top_a": float(terminal[-1]),
             "hold_top_a": float(terminal[0]), "excess_a": tail["excess_a"], "l_max_h": tail["l_max_h"]}
 
 
@@ -1140,47 +1341,29 @@ def rail_curves(result: SystemResult, points: int = 6000) -> list[dict]:
 
 def _refuse(system: System, ch) -> None:
     """What the rail's current bound is made for: a linear coil (with a moving armature,
-    an eddy term or both) or a flux-linkage curve (with a moving armature over two curves
-    too), on one switch or a full bridge, under a voltage-mode (fixed, supply-table or
-    closed-loop) hold or a current-mode one, or a latching coil, or a boosted peak.
-    Anything else is refused in one line: a moving armature over two curves with an eddy
-    term or a boosted peak (its bound takes the coil's own terminal voltage), a boosted
-    peak with an eddy term on a curve (the eddy term's bound takes a linear coil), a boosted
-    peak with a bouncing armature (``restitution``: a rebound's motional term drives the
-    current past the boost's rise, :func:`_boost_keys`), a boosted peak with any moving
-    armature, an eddy term or not (:func:`_boost_keys` takes the seated coil's inductance,
-    which the open coil outruns from the boost, and the armature may still fly in the hold,
-    where the PWM's falling flux leaves the closing-only proof of
-    :mod:`~coildrive.model.armature_bound` unproved), a latching coil's pulses from the
-    boost, and a boosted peak without ``supply.boost_efficiency`` (its converter's draw)."""
+    an eddy term or both) or a flux-linkage curve (with an eddy term, a moving armature
+    over two curves, or both), on one switch or a full bridge, under a voltage-mode (fixed, supply-table or
+    closed-loop) hold or a current-mode one, or a latching coil (its pulses from the boost
+    too), or a boosted peak (a linear coil with a moving armature, an eddy term or both; a
+    curve, with an eddy term too). Anything else is refused in one line: a moving armature
+    over two curves with a boosted peak (the single-channel design refuses it too), and a
+    boosted peak or pulses without ``supply.boost_efficiency`` (its converter's draw)."""
     d = ch.drive
     why = None
-    if d.coil.flux_current and d.armature is not None and (d.coil.eddy_resistance or d.supply.boosted):
-        key, why = "armature", ("a moving armature over flux-linkage curves with an eddy-current term or a "
-                                "boosted peak")
-    elif d.supply.boosted and d.coil.eddy_resistance and d.coil.flux_current:
-        key, why = "supply.boost", "a boosted peak with an eddy-current term on a flux-linkage curve"
-    elif d.supply.boosted and d.armature is not None and d.armature.restitution > 0:
-        key, why = "armature.restitution", ("a boosted peak with a bouncing armature (a rebound drives the "
-                                            "current past the boost's rise the rail's bound takes)")
-    elif d.supply.boosted and d.armature is not None:
-        key, why = "supply.boost", ("a boosted peak with a moving armature, with or without an eddy-current term "
-                                    "(the open coil rises from the boost faster than the seated coil the rail's "
-                                    "bound takes, and the armature may still move in the hold)")
-    elif d.supply.boosted and d.latch is not None:
-        key, why = "supply.boost", "a latching coil's pulses from the boost (their rail-current bound)"
+    if d.coil.flux_current and d.armature is not None and d.supply.boosted:
+        key, why = "armature", "a moving armature over flux-linkage curves with a boosted peak"
     elif d.supply.boosted and not d.supply.boost_efficiency > 0:
         raise InputError(d.source, "supply.boost_efficiency", f"missing: channel {ch.name!r} of {system.source} "
-                         "has a boosted peak, whose converter draws from the shared rail, expected its efficiency "
-                         "(e.g. 0.85)")
+                         "has a boosted peak or pulses, whose converter draws from the shared rail, expected its "
+                         "efficiency (e.g. 0.85)")
     if why is not None:
         raise InputError(d.source, key, f"channel {ch.name!r} of {system.source}: {why} is not modelled "
                          "in a system yet; expected a linear coil (with an [armature], an eddy term or both) "
-                         "or a flux-linkage curve (with an eddy term, or with an [armature] and no eddy term), "
+                         "or a flux-linkage curve (with an eddy term, an [armature] or both), "
                          "on one switch or a full bridge under a voltage-mode fixed, supply-table, closed-loop "
-                         "or current-mode hold, or a latching coil (not from a boost); a boosted peak on a linear "
-                         "coil (an eddy term or not, no [armature]) or on a curve with neither an eddy term nor an "
-                         "[armature]")
+                         "or current-mode hold, or a latching coil (its pulses from the boost too); a boosted peak "
+                         "on a linear coil (an eddy term, an [armature], both or neither) or on a curve (an eddy "
+                         "term or not) without an [armature]")
 
 
 def _rails(board_ch, channels) -> dict[tuple[int, ...], list[int]]:

@@ -26,7 +26,8 @@ the nominal sense chain, the hold from the main supply), on at its start offset;
 from the rail is :func:`boost_draw` (the converter's input in place of the peak's coil
 current).
 A latching channel (:func:`latch_run`) fires its set pulse at its start offset and its
-reset pulse ``hold_time`` later (at least its shortest interval).
+reset pulse ``hold_time`` later (at least its shortest interval); from the boost each pulse
+ends at its threshold and it draws the converter's input (:func:`boost_draw`).
 Any other channel with a moving armature, a flux-linkage curve, an eddy-current term or a full
 bridge runs the model's own single-channel actuation
 (:func:`coildrive.model.waveform.actuation`) as the reference driver switches it, in its
@@ -43,6 +44,7 @@ current to the rail: negative.
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -195,7 +197,13 @@ def simulate_system(result: SystemResult, supply: float, coil_temp: float, hold_
         current.append(i)
         on.append(sw)
         if k in boosts:
-            draw.append(boost_draw(c.design.drive, r, s0, boosts[k], supply, t, i, sw))
+            trace = r.boost_voltage
+            level = np.interp(t - s0, r.time, trace, left=trace[0], right=trace[-1]) if trace is not None else None
+            draw.append(boost_draw(c.design.drive, level, (t >= s0) & (t < s0 + boosts[k]), supply, i, sw))
+            continue
+        if isinstance(r, LatchRun) and r.boost_level is not None:    # its pulses from the boost
+            level = np.where(t >= s0, r.boost_level(np.maximum(t - s0, 0.0)), c.design.drive.supply.boost)
+            draw.append(boost_draw(c.design.drive, level, sw == 1, supply, i, sw))
             continue
         through = ((sw == 0) & (bypass == 0) & (i > 0)) if clamp else np.zeros(len(t), bool)
         draw.append(i * np.maximum(sw, through) - i * back)
@@ -308,13 +316,16 @@ class LatchRun:
     from the set pulse's switch-on), ``current`` (A, the pulsing winding's, its magnitude),
     ``switch_on`` (0/1, a pulse's switches), ``switches`` (a full bridge's: both pulses'
     pairs, so that all four open with current flowing is its fast decay into the rail;
-    else ``None``); no split decay's bypass (``bypass_on`` ``None``)."""
+    else ``None``); no split decay's bypass (``bypass_on`` ``None``); pulses from the boost:
+    ``boost_level``, its capacitor (V) at any times (s from the set pulse's switch-on)
+    through both (else ``None``)."""
 
     time: np.ndarray
     current: np.ndarray
     switch_on: np.ndarray
     switches: dict | None
     bypass_on: None = None
+    boost_level: Callable[[np.ndarray], np.ndarray] | None = None
 
 
 def latch_run(d, supply: float, coil_temp: float, hold_time: float, r_factor: float, l_factor: float,
@@ -322,15 +333,19 @@ def latch_run(d, supply: float, coil_temp: float, hold_time: float, r_factor: fl
     """A latching channel in ``simulate SYSTEM.toml``: its set pulse at its start, its reset
     pulse ``hold_time`` s later (at least the design's shortest interval, and after the set
     pulse's decay), each the winding's own pulse and decay
-    (:func:`coildrive.model.latch_waveform.pulse`)."""
-    from ..model.latch_waveform import pulse
-    from .latch import winding_drive
+    (:func:`coildrive.model.latch_waveform.pulse`); from the boost, each pulse until the
+    firmware's threshold at the point (:func:`coildrive.design.latch.firmware_pulse`) and
+    the boost capacitor through both (:func:`coildrive.model.latch_waveform.boost_column`)."""
+    from ..model.latch_waveform import boost_column, pulse
+    from .latch import firmware_pulse, winding_drive
 
-    by = {p.name: p for p in d.latch.pulses}
+    by = {p.name: p.time_s for p in d.latch.pulses}
     drive = d.drive
-    ts, is_, ons, _, tz, _, _ = pulse(drive, supply, coil_temp, r_factor, l_factor, by["set"].time_s, points)
-    tr, ir, onr, _, _, _, _ = pulse(winding_drive(drive, True), supply, coil_temp, r_factor, l_factor,
-                                    by["reset"].time_s, points)
+    if drive.supply.boosted:
+        by = {name: firmware_pulse(d, name, supply, coil_temp, r_factor, l_factor) for name in by}
+    reset_drive = winding_drive(drive, True)
+    ts, is_, ons, _, tz, _, _ = pulse(drive, supply, coil_temp, r_factor, l_factor, by["set"], points)
+    tr, ir, onr, _, _, _, _ = pulse(reset_drive, supply, coil_temp, r_factor, l_factor, by["reset"], points)
     interval = d.latch.interval_s if math.isfinite(d.latch.interval_s) else 0.0
     gap = max(hold_time, interval, tz)
     (ts, is_, ons), (tr, ir, onr) = (_off_edge(ts, is_, ons), _off_edge(tr, ir, onr))
@@ -340,24 +355,27 @@ def latch_run(d, supply: float, coil_temp: float, hold_time: float, r_factor: fl
         pair_set = np.concatenate([ons, 0 * onr]).astype(np.int8)
         pair_reset = np.concatenate([0 * ons, onr]).astype(np.int8)
         switches = {"Q1": pair_set, "Q4": pair_set, "Q3": pair_reset, "Q2": pair_reset}
-    return LatchRun(np.concatenate([ts, gap + tr]), np.abs(np.concatenate([is_, ir])), on, switches)
+    level = None
+    if drive.supply.boosted:
+        def level(rel):
+            return boost_column(drive, reset_drive, supply, coil_temp, r_factor, l_factor, rel, by["set"],
+                                by["reset"], gap)
+    return LatchRun(np.concatenate([ts, gap + tr]), np.abs(np.concatenate([is_, ir])), on, switches,
+                    boost_level=level)
 
 
-def boost_draw(drive, w, start: float, peak: float, supply: float, t, i, sw) -> np.ndarray:
-    """A boosted channel's current from the rail (A) on the grid ``t`` (s): its coil's
-    current while its switch conducts, except in the peak (the boost feeds it; the main
-    supply's diode blocks), plus its boost converter's input, its output over
-    ``supply.boost_efficiency`` at the bus ``supply`` V: with a capacitor ``boost_power``
-    while the capacitor is below its full charge (its discharge in the peak, then the
-    recharge), with an ideal boost ``V_b i`` in the peak."""
+def boost_draw(drive, level, in_peak, supply: float, i, sw) -> np.ndarray:
+    """A boosted channel's current from the rail (A) on a grid: its coil's current ``i``
+    while its switch conducts (``sw``), except where the boost feeds it (``in_peak``, per
+    grid point: the peak, or a latching coil's pulses; the main supply's diode blocks),
+    plus its boost converter's input, its output over ``supply.boost_efficiency`` at the
+    bus ``supply`` V: with a capacitor (``level``: its voltage on the grid, full charge
+    before the switch-on) ``boost_power`` while it is below its full charge (its discharge
+    in the peak, then the recharge), with an ideal boost ``V_b i`` where it feeds the coil."""
     s = drive.supply
-    rel = t - start
-    in_peak = (rel >= 0) & (rel < peak)
     coil = np.where(in_peak, 0.0, i * sw)
     if s.boost_capacitance > 0:
-        trace = w.boost_voltage
-        level = np.interp(rel, w.time, trace, left=trace[0], right=trace[-1])
-        charging = (rel >= 0) & (level < trace[0] * (1 - 1e-9))
+        charging = np.asarray(level) < s.boost * (1 - 1e-9)
         return coil + np.where(charging | in_peak, s.boost_power / (s.boost_efficiency * supply), 0.0)
     return coil + np.where(in_peak, s.boost * i / (s.boost_efficiency * supply), 0.0)
 

@@ -221,9 +221,9 @@ def boost_of(drive: Drive, r_on: float, inductance):
                              *boost_model.one_point(inductance))
 
 
-def _boost_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float, r_factor: float,
-                  l_factor: float, time, set_time: float, reset_time: float, gap: float,
-                  seating=None) -> np.ndarray:
+def boost_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float, r_factor: float,
+                 l_factor: float, time, set_time: float, reset_time: float, gap: float,
+                 seating=None) -> np.ndarray:
     """The boost capacitor (V) through both pulses: each pulse draws it down from full
     charge, then the converter recharges it at ``boost_power``
     (:func:`coildrive.model.boost.voltage_trace`); the reset pulse starts from full charge
@@ -348,9 +348,9 @@ def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: 
         cols = {k: cols[k] for k in ("time_s", "current_a", "reset_current_a", "coil_voltage_v",
                                      "reset_coil_voltage_v", "switch_voltage_v", "reset_switch_voltage_v")}
     if drive.supply.boosted:
-        cols["boost_v"] = _boost_column(drive, reset_drive, supply, coil_temp, r_factor, l_factor, time,
-                                        set_time, reset_time, gap,
-                                        None if gap_s is None else (ts, is_, ons, buses))
+        cols["boost_v"] = boost_column(drive, reset_drive, supply, coil_temp, r_factor, l_factor, time,
+                                       set_time, reset_time, gap,
+                                       None if gap_s is None else (ts, is_, ons, buses))
     if drive.supply.boosted and drive.supply.droops and not full_bridge(drive):
         main = _main_bus_column(drive, reset_drive, supply, coil_temp, r_factor, l_factor, time, set_time,
                                 reset_time, gap)
