@@ -48,7 +48,6 @@ from coildrive.model.rl import decay_time
 
 VALVE = EXAMPLES / "latching" / "shutoff-valve-boost-reset-winding-12v.toml"
 BRIDGE = EXAMPLES / "latching" / "irrigation-valve-bridge-12v.toml"
-BOARDS_MANIFOLD = BOARDS / "manifold-m32-6ch.toml"
 
 
 def header_holds(tmp_path, header: str, condition: str) -> None:
@@ -353,23 +352,6 @@ def test_a_boost_too_small_fails_and_a_high_side_board_reports_its_node(tmp_path
     d = design_latch(hs)
     assert d.ok and all(p.lowest_node_v == pytest.approx(-hs.freewheel.diode_drop, abs=1e-6) for p in d.latch.pulses)
     assert any("node swings" in c for c in d.cautions)
-
-
-def test_a_system_channel_latching_from_the_boost_is_refused_in_one_line(tmp_path):
-    from rail_reference import manifold_copy
-    from test_system_latch import CIRCUITS, LATCH
-
-    path = manifold_copy(tmp_path)
-    text = LATCH.format(circuit=CIRCUITS["winding"]).replace(
-        'settle_time = "10 ms"\n', "").replace(
-        "sink = true\n", 'sink = true\nboost = "48 V"\nboost_capacitance = "220 uF"\nboost_power = "2 W"\n'
-        "boost_efficiency = 0.85\n")
-    (tmp_path / "purge-latch-24v.toml").write_text(text)
-    path.write_text(path.read_text().replace('"purge-valve-24v.toml"', '"purge-latch-24v.toml"'))
-    assert load_drive(tmp_path / "purge-latch-24v.toml", BOARDS_MANIFOLD).supply.boosted
-    res = CliRunner().invoke(app, ["design", str(path)])
-    assert res.exit_code == 2 and "supply.boost" in res.stderr and "latching coil's pulses from the boost" in res.stderr, res.output
-    assert len(res.stderr.strip().splitlines()) == 1 and "Traceback" not in res.output
 
 
 def samples_inside_the_corners(d, n: int) -> None:
