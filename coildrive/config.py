@@ -1489,10 +1489,11 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
     through the boost switch's body diode, on a stiff main supply), a stiff or a drooping
     main supply (the boost converter's draw on it:
     :func:`coildrive.design.latch_boost.main_bus`) and no settle time after the reset pulse;
-    with an ``[armature]`` a linear coil and its reset winding on a stiff main supply (the
-    set pulse's seat run from the boost capacitor: the design refuses in one line where it
-    is not on the seat when the current reaches the threshold,
-    :func:`coildrive.design.latch_boost.armature_pulse`)."""
+    with an ``[armature]`` a linear coil and its reset winding on a stiff or a drooping main
+    supply (the set pulse's seat run from the boost capacitor: the design refuses in one
+    line where it is not on the seat when the current reaches the threshold,
+    :func:`coildrive.design.latch_boost.armature_pulse`; the main bus sees only the
+    converter's recharge of the run's energy)."""
     if switch.topology == "full_bridge" and not supply.boost_capacitance > 0:
         return "supply.boost_capacitance", ("a latching coil on a full bridge from an ideal boost (each fast "
                                             "decay returns into the boost capacitor: give its capacitance)")
@@ -1503,9 +1504,6 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
         return (("coil.flux_current" if coil.flux_current else "coil.eddy_resistance"),
                 "a latching coil on a full bridge from the boost with a flux-linkage curve or an eddy-current "
                 "term (its fast decay back into the boost capacitor: a linear coil)")
-    if armature is not None and supply.droops:
-        return "supply.source_resistance", ("a latching coil with a moving armature from the boost on a drooping "
-                                            "main supply (a stiff main supply only)")
     reset = latch.reset_coil if latch is not None else None
     if armature is not None and (coil.flux_current or coil.eddy_resistance
                                  or (reset is not None and (reset.flux_current or reset.eddy_resistance))):
@@ -1608,8 +1606,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "with [armature]: no mixed decay, no restitution with an eddy term; a "
                          "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, or a "
                          "linear coil on a full bridge with a boost capacitor on a stiff main supply; a stiff or a "
-                         "drooping main supply, no reset settle_time; with [armature] a linear coil on a stiff main "
-                         "supply, seated by the set pulse's threshold")
+                         "drooping main supply, no reset settle_time; with [armature] a linear coil, seated by the set "
+                         "pulse's threshold")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,
