@@ -31,7 +31,7 @@ import pytest
 from conftest import run_cli
 from test_latch_boost import header_holds
 from test_latch_boost_armature import VALVE, _side, reference
-from test_latch_boost_droop import _bus_ivp
+from test_latch_boost_droop import _bus_ivp, simulated_bus
 
 from coildrive.config import load_drive
 from coildrive.design.latch import design_latch
@@ -88,25 +88,8 @@ def test_simulate_header_and_check(droop, tmp_path):
     from coildrive.bench.latch_device import LatchDevice
 
     path, _, d = droop
-    csv = tmp_path / "w.csv"
-    r = run_cli("simulate", str(path), "--supply", "9", "--coil-temp", "120", "--csv", str(csv))
-    assert r.returncode == 0, r.stderr
-    w = np.genfromtxt(csv, delimiter=",", names=True)
-    assert w.dtype.names[-2:] == ("boost_v", "main_bus_v")
-    # scipy solve_ivp of the bus: full until each pulse ends (the boost capacitor lowest), the
-    # converter's draw while that energy goes back at 4 W, rest
-    t, boost, bus = w["time_s"], w["boost_v"], w["main_bus_v"]
-    gap = d.latch.interval_s
-    ends = [int(np.argmin(np.where(part, boost, np.inf))) for part in (t < gap, t >= gap)]
-    lows = [float(t[k]) for k in ends]
-    draws = [0.5 * 220e-6 * (40.0**2 - float(boost[k]) ** 2) / 4.0 for k in ends]
-    phases = [(lows[0], False), (draws[0], True), (lows[1] - lows[0] - draws[0], False), (draws[1], True),
-              (t[-1] - lows[1] - draws[1] + 1e-6, False)]
-    _, sols = _bus_ivp(9.0, 2.0, 10e-3, 4.0 / 0.85, phases)
-    edges = np.cumsum([0.0] + [x for x, _ in phases])
-    ref = np.concatenate([sol.sol(t[(t >= a) & (t < b)] - a)[0] for sol, a, b in zip(sols, edges, edges[1:])
-                          if np.any((t >= a) & (t < b))])
-    assert bus == pytest.approx(ref, rel=1e-6)
+    # simulate's main bus against scipy solve_ivp, the draws from the run's boost_v column
+    bus = simulated_bus(path, d, tmp_path, power=4.0, c_bus=10e-3)
     assert bus.min() < 8.6 and bus[0] == 9.0
     r = run_cli("design", str(path), "--json", "--header", str(tmp_path / "p.h"), "--prefix", "PLG")
     assert r.returncode == 0, r.stderr
