@@ -25,7 +25,6 @@ from __future__ import annotations
 import json
 import math
 
-import numpy as np
 import pytest
 
 from conftest import run_cli
