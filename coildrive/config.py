@@ -1493,7 +1493,8 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
     supply (the set pulse's seat run from the boost capacitor: the design refuses in one
     line where it is not on the seat when the current reaches the threshold,
     :func:`coildrive.design.latch_boost.armature_pulse`; the main bus sees only the
-    converter's recharge of the run's energy)."""
+    converter's recharge of the run's energy), an eddy term on the set winding too (from a
+    boost capacitor: its loss is a state of that run)."""
     if switch.topology == "full_bridge" and not supply.boost_capacitance > 0:
         return "supply.boost_capacitance", ("a latching coil on a full bridge from an ideal boost (each fast "
                                             "decay returns into the boost capacitor: give its capacitance)")
@@ -1505,12 +1506,17 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
                 "a latching coil on a full bridge from the boost with a flux-linkage curve or an eddy-current "
                 "term (its fast decay back into the boost capacitor: a linear coil)")
     reset = latch.reset_coil if latch is not None else None
-    if armature is not None and (coil.flux_current or coil.eddy_resistance
-                                 or (reset is not None and (reset.flux_current or reset.eddy_resistance))):
-        return (("coil.flux_current" if coil.flux_current or (reset is not None and reset.flux_current)
-                 else "coil.eddy_resistance"),
-                "a latching coil with a moving armature from the boost with a flux-linkage curve or an "
-                "eddy-current term (the set pulse's seat run from the boost: a linear coil)")
+    if armature is not None and (coil.flux_current or (reset is not None and reset.flux_current)):
+        return "coil.flux_current", ("a latching coil with a moving armature from the boost with a flux-linkage "
+                                     "curve (the set pulse's seat run from the boost: a linear coil, an eddy "
+                                     "term on the set winding too)")
+    if armature is not None and reset is not None and reset.eddy_resistance:
+        return "reset_coil.eddy_resistance", ("a latching coil with a moving armature from the boost with an "
+                                              "eddy-current term on the reset winding (the set winding's only)")
+    if armature is not None and coil.eddy_resistance and not supply.boost_capacitance > 0:
+        return "supply.boost_capacitance", ("a latching coil with a moving armature and an eddy-current term "
+                                            "from an ideal boost (the set pulse's eddy loss is followed on a "
+                                            "boost capacitor's run: give its capacitance)")
     if latch is not None and latch.reset_settle_time > 0:
         return "reset.settle_time", ("a reset settle time (each pulse from the boost ends at its current "
                                      "threshold, not at a time after it)")
@@ -1606,8 +1612,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "with [armature]: no mixed decay, no restitution with an eddy term; a "
                          "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, or a "
                          "linear coil on a full bridge with a boost capacitor on a stiff main supply; a stiff or a "
-                         "drooping main supply, no reset settle_time; with [armature] a linear coil, seated by the set "
-                         "pulse's threshold")
+                         "drooping main supply, no reset settle_time; with [armature] a linear coil (an eddy term on the "
+                         "set winding from a boost capacitor too), seated by the set pulse's threshold")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,

@@ -135,8 +135,11 @@ class ArmaturePulse:
     :func:`coildrive.design.boost.boost_figures` takes of a moving armature (a
     :class:`~coildrive.design.boost_armature.BoostRuns` without a hold: ``slow`` is
     ``seated``, ``duty`` 0, ``window`` 0). ``ends``: per side (``False`` lowest, ``True``
-    highest) ``(current A, int i^2 dt A^2*s, energy from the boost J)`` at the end of the
-    pulse that ends at the highest trip current one tick late (0 where never)."""
+    highest) ``(magnetising current A, terminal current A, int i^2 dt A^2*s, energy from
+    the boost J, eddy loss J)`` at the end of the pulse that ends at the highest trip current
+    one tick late (0 where never; without an eddy term both currents the coil's, the loss 0;
+    with one ``int i^2 dt`` the terminal current's and the loss the run's
+    ``R_e int (i_m - i_t)^2 dt``)."""
 
     seat_time: np.ndarray
     seat_high: np.ndarray
@@ -157,24 +160,26 @@ def armature_pulse(wd: Drive, lp, l_factor, label, thr: tuple[float, int, float]
     from .boost_armature import BoostRuns, boosted_params
 
     i_th, _, i_trip = thr
-    p = params_from_loop(wd.armature, lp, l_factor)
+    p = params_from_loop(wd.armature, lp, l_factor, wd.coil.eddy_resistance)
+    eddy = p.eddy is not None
     dt = late(wd)
     first, ends, out = {}, {}, {}
     for high in (False, True):
         pb = boosted_params(wd, p, high)
-        pin = pull_in(pb, trip=i_th)
+        pin = pull_in(pb, trip=i_th, eddy_loss=eddy)
         open_ = np.flatnonzero(pin.status == TRIPPED)
         if open_.size:
             _refuse(wd, pb, pin, int(open_[np.argmin(pin.trip_time[open_])]), label, high, i_th)
         first[high] = pin
-        end = pull_in(pb, trip=i_trip) if i_trip > i_th else pin
+        end = pull_in(pb, trip=i_trip, eddy_loss=eddy) if i_trip > i_th else pin
         hit = np.isfinite(end.trip_time)
         y = seated_on(pb, np.where(hit, end.trip_state, 0.0), dt)
-        i_top = np.where(hit, pb.current(y[0], 0.0), 0.0)
-        drawn = np.where(hit, boost_energy(pb, y), 0.0)
-        ends[high] = (i_top, np.where(hit, y[4], 0.0), drawn)
         u = y[5] if pb.droops else pb.v_on
-        out[high] = (np.where(hit, end.trip_time + dt, np.inf), i_top, np.where(hit, u, np.nan), drawn)
+        i_top = np.where(hit, pb.current(y[0], 0.0), 0.0)
+        i_end = np.where(hit, pb.terminal(i_top, True, bus=u), 0.0)   # (what the switch turns off)
+        drawn = np.where(hit, boost_energy(pb, y), 0.0)
+        ends[high] = (i_top, i_end, np.where(hit, y[4], 0.0), drawn, np.where(hit, y[6], 0.0) if eddy else 0.0 * drawn)
+        out[high] = (np.where(hit, end.trip_time + dt, np.inf), i_end, np.where(hit, u, np.nan), drawn)
     seat = {h: np.where(first[h].status == SEATED, first[h].seat_time, np.inf) for h in (False, True)}
     seat_high = seat[True] > seat[False]
     low, high_ = out[False], out[True]
@@ -194,15 +199,22 @@ def _reachable(pb, pin) -> np.ndarray:
     higher) and the seated coil's highest from the seat's state on
     (:func:`coildrive.model.supply.top_from`;
     an ideal boost's RL rise, ``V_b / R``); at rest on the open stop for ever (or stalled in
-    flight, an estimate there) the open coil's (:func:`coildrive.model.supply.top_current`)."""
+    flight, an estimate there) the open coil's (:func:`coildrive.model.supply.top_current`).
+    With an eddy term (the threshold on the terminal current ``(u + R_e i_m)/(R + R_e)``)
+    those are the magnetising current's, taken with the capacitor at its seat (or full) as
+    an upper bound of the terminal current's (the capacitor only falls while the current
+    flows); the hump is the terminal current's already."""
     from ..model import supply as bus_model
     from ..model.armature import SEATED
 
     seated = pin.status == SEATED
     if pb.droops:
         open_top = bus_model.top_current(pb.bus(True))
-        seat_top = bus_model.top_from(pb.bus(False), np.where(seated, pin.seat_current, 0.0),
-                                      np.where(seated, pin.seat_bus, pb.v_on))
+        u_seat = np.where(seated, pin.seat_bus, pb.v_on)
+        seat_top = bus_model.top_from(pb.bus(False), np.where(seated, pin.seat_current, 0.0), u_seat)
+        if pb.eddy is not None:
+            open_top = pb.terminal(open_top, True)
+            seat_top = pb.terminal(seat_top, True, bus=u_seat)
     else:
         open_top = pb.v_on / pb.r_on
         seat_top = np.maximum(np.where(seated, pin.seat_current, 0.0), open_top)
@@ -277,8 +289,7 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult, ends: dict | None
             drawn = m.energy_drawn(t, bb)
             i_end = m.terminal(i_top, v_top, bb)
         else:   # a moving armature: a linear coil on one switch (config refuses the rest)
-            i_top, s_on, drawn = ends[high]
-            i_end = i_top
+            i_top, i_end, s_on, drawn, loss_on = ends[high]
         ind = lp.inductance
         sense = wd.board.sense
         r_sense = sense.resistance * sense_factor
@@ -302,8 +313,8 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult, ends: dict | None
                  "freewheel_j": fw, "returned_j": returned,
                  # the on-time's share by the boost's balance, then the release's (the
                  # conduction, then the flux's tail through R_e alone)
-                 "eddy_j": (m.eddy_loss(t, bb) + release_eddy_energy(i_top, rel.r_off, rel.v_off, ind)
-                            if eddy else 0.0 * drawn),
+                 "eddy_j": ((m.eddy_loss(t, bb) if ends is None else loss_on)
+                            + release_eddy_energy(i_top, rel.r_off, rel.v_off, ind) if eddy else 0.0 * drawn),
                  "stored_j": stored_energy(ind.magnetising if eddy else ind, i_top)}
         # the armature's share: what the boost gave that no element took (zero current at both ends)
         parts["armature_j"] = (drawn - sum(parts[n] for n in ("copper_j", "switch_sense_j", "boost_j", "freewheel_j",
@@ -395,7 +406,7 @@ def _threshold_tick(wd: Drive, b: BoostResult, supply: float, coil_temp: float, 
     m = model.of(bb)
     trip = boost.nominal_trip(wd, b.threshold_code)
     t = (float(m.threshold_time(trip, bb, sensed=True)) if wd.armature is None
-         else boost.armature_trip_time(wd, lp, l_factor, trip))
+         else boost.armature_trip_time(wd, lp, l_factor, trip, eddy=True))
     rate = wd.board.tick.rate
     # the driver compares at each tick after the pulse's first: at the first at or after the crossing
     t = max(math.ceil(t * rate - 1e-9), 1) / rate if math.isfinite(t) else t
@@ -512,7 +523,8 @@ def _sample_armature(wd: Drive, lp, rel, l_factor, b: BoostResult, trip, v_facto
     from ..model.armature_runs import pull_in
 
     s = wd.supply
-    pb = boost_params(params_from_loop(wd.armature, lp, l_factor), s.boost * np.asarray(v_factor, float),
+    pb = boost_params(params_from_loop(wd.armature, lp, l_factor, wd.coil.eddy_resistance),
+                      s.boost * np.asarray(v_factor, float),
                       s.boost_capacitance * np.asarray(c_factor, float), s.boost_resistance)
     pin = pull_in(pb, trip=trip)
     seated = (pin.status == SEATED) & np.isfinite(pin.trip_time)

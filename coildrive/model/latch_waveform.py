@@ -318,8 +318,9 @@ def _seating(drive: Drive, lp, l_factor: float, t_pulse: float, points: int, sup
     i = tr.current if tr.magnetising_current is None else tr.magnetising_current
     if tr.bus is None:   # a stiff bus (an ideal boost: its voltage)
         return tr.time, i, tr.position, np.full(tr.time.shape, float(p.v_on[0]))
-    # from the boost: the top of the coil is the capacitor less the boost path's drop
-    return tr.time, i, tr.position, (tr.bus - s.boost_resistance * i if s.boosted else tr.bus)
+    # from the boost: the top of the coil is the capacitor less the boost path's drop (the
+    # terminal current's, with an eddy term)
+    return tr.time, i, tr.position, (tr.bus - s.boost_resistance * tr.current if s.boosted else tr.bus)
 
 
 def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float,
