@@ -291,6 +291,13 @@ def test_the_compiled_driver_in_the_loop_passes_check(valve, tmp_path, monkeypat
     """firmware-driver -> the compiled latch driver (gcc) in the model's device, ending each
     pulse at the tick its reading reaches the code while the plunger's run sets the current
     (plumbing: the model is the design's own) -> check passes; 40 % more resistance fails."""
+    path, _, d = valve
+    driver_in_the_loop(path, d, tmp_path, monkeypatch)
+
+
+def driver_in_the_loop(path, d, tmp_path, monkeypatch) -> None:
+    """:func:`test_the_compiled_driver_in_the_loop_passes_check` of the drive at ``path``
+    (its design ``d``)."""
     from test_emulator_device import capture_of, run as run_device
     from conftest import require_tool
     from coildrive.bench.device import DeviceOptions
@@ -302,7 +309,6 @@ def test_the_compiled_driver_in_the_loop_passes_check(valve, tmp_path, monkeypat
 
     require_tool("gcc")
     monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "cache"))
-    path, _, d = valve
     r = run_cli("firmware-driver", str(path), "--out", str(tmp_path / "fw"))
     assert r.returncode == 0, r.stderr
     lib = build_latch_firmware(tmp_path / "fw", d)

@@ -31,7 +31,8 @@ import pytest
 
 from conftest import run_cli
 from test_latch_boost import header_holds
-from test_latch_boost_armature import device_checks, plunger_valve, set_pulse_against_reference, simulated_set_pulse
+from test_latch_boost_armature import (device_checks, driver_in_the_loop, plunger_valve, set_pulse_against_reference,
+                                       simulated_set_pulse)
 
 from coildrive.config import load_drive
 from coildrive.design.latch import design_latch
@@ -76,6 +77,13 @@ def test_cli_simulate_header_emulate_check(eddy, tmp_path):
     # capacitor at its end against scipy solve_ivp; emulate -> check (plumbing)
     simulated_set_pulse(path, drive, d, s["boost"]["threshold_code"], tmp_path)
     device_checks(d, tmp_path)
+
+
+def test_the_compiled_driver_in_the_loop_passes_check(eddy, tmp_path, monkeypatch):
+    """The compiled latch driver (gcc) in the model's device, the set pulse's terminal current
+    with its eddy step read against the code (plumbing) -> check passes; 40 % more resistance
+    fails."""
+    driver_in_the_loop(eddy[0], eddy[2], tmp_path, monkeypatch)
 
 
 def test_an_ideal_boost_and_a_reset_winding_s_eddy_term_are_refused_in_one_line(eddy, tmp_path):

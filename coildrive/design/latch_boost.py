@@ -70,7 +70,13 @@ seated coil's closed form from the boost capacitor
 (:func:`coildrive.model.armature_boost.seated_on`): the end current, the capacitor, the
 energy ``1/2 C (V_b^2 - u^2)`` and ``int i^2 dt`` are the run's. The balance above then has
 one more term, the armature's (``armature_j``: the spring's and the load's work, the
-damping's heat and the seat's impact), its remainder.
+damping's heat and the seat's impact), its remainder. With an eddy term on the set winding
+(from a boost capacitor) the run is the branch's (the force on the magnetising current, the
+threshold and ``int i^2 dt`` on the terminal current, the switch turning that off) and
+carries the eddy resistance's loss as a state of its own
+(:func:`coildrive.model.armature_runs.pull_in`'s ``eddy_loss``), so ``E_eddy`` is computed,
+that plus the release's, and the remainder stays the mechanical work. On a drooping main
+supply the converter's draw after the set pulse is the run's energy (:func:`main_bus`).
 """
 
 from __future__ import annotations
@@ -288,7 +294,7 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult, ends: dict | None
             s_on = m.square_integral(t, bb)
             drawn = m.energy_drawn(t, bb)
             i_end = m.terminal(i_top, v_top, bb)
-        else:   # a moving armature: a linear coil on one switch (config refuses the rest)
+        else:   # a moving armature: a linear coil on one switch, an eddy term too (config refuses the rest)
             i_top, i_end, s_on, drawn, loss_on = ends[high]
         ind = lp.inductance
         sense = wd.board.sense
