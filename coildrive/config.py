@@ -1553,8 +1553,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     A latching coil's set and reset pulses from the boost, each ending at its own threshold
     (:mod:`coildrive.design.latch_boost`; a linear coil or a curve, an eddy term too; on a
     full bridge a linear coil, the boost feeding both legs' high side and each fast decay
-    returning into the boost capacitor): what
-    :func:`_boosted_latch_refusal` allows.
+    returning into the boost capacitor; a clamp across the switch on a stiff main supply,
+    whose decay draws on it): what :func:`_boosted_latch_refusal` allows.
     Anything else is refused in one line."""
     if not supply.boosted:
         return
@@ -1574,10 +1574,10 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                                    "curve's without one)")
     elif hold.mode == "latch" and _boosted_latch_refusal(coil, switch, supply, armature, latch):
         key, why = _boosted_latch_refusal(coil, switch, supply, armature, latch)
-    elif hold.mode == "latch" and freewheel.type == "clamp":
+    elif hold.mode == "latch" and freewheel.type == "clamp" and supply.droops:
         key, why = "freewheel.type", ("a latching coil's pulses from the boost with a clamp across the switch "
-                                      "(the clamp's draw after each pulse is the main bus's: modelled without "
-                                      "a boost only)")
+                                      "on a drooping main supply (the clamp's draw on it after each pulse, with "
+                                      "the converter's: a stiff main supply only)")
     elif armature is not None and supply.droops and switch.topology == "full_bridge":
         key, why = "supply.source_resistance", ("a drooping main supply and a moving armature on a full bridge "
                                                 "(the armature's release into the bus with the boost converter "
@@ -1612,8 +1612,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "with [armature]: no mixed decay, no restitution with an eddy term; a "
                          "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, or a "
                          "linear coil on a full bridge with a boost capacitor on a stiff main supply; a stiff or a "
-                         "drooping main supply, no reset settle_time; with [armature] a linear coil (an eddy term on the "
-                         "set winding from a boost capacitor too), seated by the set pulse's threshold")
+                         "drooping main supply (a clamp on a stiff one), no reset settle_time; with [armature] a "
+                         "linear coil (an eddy term on the set winding from a boost capacitor too), seated by the "
+                         "set pulse's threshold")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,

@@ -226,17 +226,17 @@ def simulated_set_pulse(path, drive, d, code: int, tmp_path, plot: bool = False)
     assert w["boost_v"][end] == pytest.approx(ref["u"], rel=1e-5)
 
 
-def device_checks(d, tmp_path) -> None:
+def device_checks(d, tmp_path, fault: dict | None = None) -> None:
     """emulate -> check with the model's device at 9 V, coil 100 degC (plumbing): the design
-    ``d`` passes, and a coil with 40 % more resistance fails."""
+    ``d`` passes, and a coil with 40 % more resistance (or the :class:`DeviceOptions`
+    ``fault``) fails."""
     from test_emulator_device import capture_of, run as run_device
     from coildrive.bench.device import DeviceOptions
     from coildrive.bench.latch_check import check_latch_capture
     from coildrive.bench.latch_device import LatchDevice
 
-    for name, scale, ok in (("good", 1.0, True), ("hot", 1.4, False)):
-        dev = LatchDevice(d, DeviceOptions(noise_codes=0.5, seed=5, supply=9.0, coil_temp=100.0,
-                                           resistance_scale=scale))
+    for name, options, ok in (("good", {}, True), ("bad", fault or {"resistance_scale": 1.4}, False)):
+        dev = LatchDevice(d, DeviceOptions(noise_codes=0.5, seed=5, supply=9.0, coil_temp=100.0, **options))
         msgs, _ = run_device(dev, 0.05 + 2.2 * dev.period, step=0.05)
         rep = check_latch_capture(capture_of(msgs, tmp_path / f"{name}.cdcap"), d, coil_temp=100.0)
         assert rep.ok is ok, (name, [(i.name, i.status, i.detail) for i in rep.items])

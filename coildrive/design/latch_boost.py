@@ -274,7 +274,8 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult, ends: dict | None
     ``eddy_j`` (an eddy term's resistance: on, freewheeling and the flux's tail; 0 without
     one), ``stored_j`` (the field's ``int i dpsi`` at the turn-off: ``1/2 L I^2`` for a
     linear coil, the magnetising branch's with an eddy term), ``armature_j`` (a moving
-    armature's, the remainder; 0 without ``ends``), and ``k`` the point, ``high`` the side;
+    armature's, the remainder; 0 without ``ends``), ``main_supply_j`` what the main supply gives in a clamp's decay (``V_main Q_d``; 0
+    for the other paths), and ``k`` the point, ``high`` the side;
     ``decay_time_s`` the longest time to zero (of the terminal current) after a pulse,
     ``end_current_a`` the highest (terminal) current it turns off and ``net_j`` the most
     the boost net gives (drawn less returned; over both sides). ``ends``: a moving
@@ -312,6 +313,10 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult, ends: dict | None
             t_zero = decay_time(0.0, i_top, rel.r_off, rel.v_off, ind)
             q_d, s_d = decay_integrals(t_zero, i_top, rel.r_off, rel.v_off, ind)
             fw, returned = freewheel_element_energy(wd, rel, q_d, s_d), 0.0 * drawn
+        # a clamp across the switch: the decay's current flows from the main bus (the top back
+        # on it through its diode) through the winding and the clamp, L di/dt = -(R_off i +
+        # V_clamp - V_main): the main supply gives V_main int i dt
+        main = rel.supply * q_d if wd.freewheel.type == "clamp" and not bridge else 0.0 * drawn
         parts = {"supply_j": drawn, "copper_j": lp.r_coil * (s_on + s_d),
                  "switch_sense_j": (2.0 if bridge else 1.0) * wd.switch.on_resistance * s_on
                  + r_sense * (s_on + (s_d if bridge or sense.position == "coil" else 0.0)),
@@ -321,9 +326,9 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult, ends: dict | None
                  # conduction, then the flux's tail through R_e alone)
                  "eddy_j": ((m.eddy_loss(t, bb) if ends is None else loss_on)
                             + release_eddy_energy(i_top, rel.r_off, rel.v_off, ind) if eddy else 0.0 * drawn),
-                 "stored_j": stored_energy(ind.magnetising if eddy else ind, i_top)}
+                 "stored_j": stored_energy(ind.magnetising if eddy else ind, i_top), "main_supply_j": main}
         # the armature's share: what the boost gave that no element took (zero current at both ends)
-        parts["armature_j"] = (drawn - sum(parts[n] for n in ("copper_j", "switch_sense_j", "boost_j", "freewheel_j",
+        parts["armature_j"] = (drawn + main - sum(parts[n] for n in ("copper_j", "switch_sense_j", "boost_j", "freewheel_j",
                                                               "returned_j", "eddy_j"))
                                if ends is not None else 0.0 * drawn)
         k = int(np.argmax(drawn))
@@ -360,7 +365,8 @@ def checks(name: str, b: BoostResult, wd: Drive) -> list[Check]:
     ``{name}_pulse`` check) and the boost capacitor above the main supply until it
     (``{name}_boost_droop``), worded as the boosted peak's
     (:func:`coildrive.design.boost.boost_checks`)."""
-    rename = {"boost_threshold": f"{name}_pulse", "boost_droop": f"{name}_boost_droop"}
+    rename = {"boost_threshold": f"{name}_pulse", "boost_droop": f"{name}_boost_droop",
+              "boost_clamp": f"{name}_boost_clamp"}
     return [Check(rename[c.name], c.ok, f"the {name} pulse from the boost: "
                   + c.detail.replace("the end of the peak", "the end of the pulse"))
             for c in boost.boost_checks(wd, b) if c.name in rename]
