@@ -68,10 +68,13 @@ def reference(drive, corner: str, high: bool | None, trip: float, late: float) -
     ``i`` is the branch's current, the terminal current ``i_t = (u + R_e i)/(R + R_e)`` on
     (``(R_e i - V_d)/(R_off + R_e)`` freewheeling, then 0: the flux's tail through ``R_e``
     alone), the branch sees ``v_m = u - R i_t`` (``-(R_off i_t + V_d)``), the threshold,
-    ``int i^2 dt`` and the energies take ``i_t``, and ``R_e``'s loss is ``v_m^2 / R_e``."""
+    ``int i^2 dt`` and the energies take ``i_t``, and ``R_e``'s loss is ``v_m^2 / R_e``. With
+    a clamp across the switch (test_latch_boost_clamp) the decay runs from the corner's main
+    supply through the winding and the clamp, ``V_clamp - V_main`` in ``V_d``'s place: the
+    clamp takes ``V_clamp int i dt``, the main supply gives ``V_main int i dt`` (``main_j``)."""
     from scipy.integrate import solve_ivp
 
-    _, temp, rf, lf = _corner(corner)
+    v_main, temp, rf, lf = _corner(corner)
     c, a, s, b = drive.coil, drive.armature, drive.supply, drive.board
     r_coil = c.resistance * (1 + 0.00393 * (temp - c.reference_temp)) * rf   # copper, IEC 60028
     r = r_coil + drive.switch.on_resistance + b.sense.resistance + s.boost_resistance
@@ -131,6 +134,9 @@ def reference(drive, corner: str, high: bool | None, trip: float, late: float) -
     i, _, _, u, sq, damp, eddy_on = sol.y[:, -1]
     out.update(i=terminal(sol.y[:, -1]), i_m=i, u=u, sq=sq, damp=damp, supply_j=0.5 * c_b * (v_b**2 - u**2))
     r_off, v_d = r_coil + b.sense.resistance, drive.freewheel.diode_drop   # the sense in the coil path
+    clamp = drive.freewheel.type == "clamp"   # across the switch: from the main supply through it
+    if clamp:
+        v_d = drive.freewheel.clamp_voltage - v_main
 
     def off(_t, y):   # rows: i, int i_t^2, int i_t, R_e's loss
         i_t = (r_e * y[0] - v_d) / (r_off + r_e) if math.isfinite(r_e) else y[0]
@@ -140,7 +146,9 @@ def reference(drive, corner: str, high: bool | None, trip: float, late: float) -
     zero = event(lambda _t, y: (r_e * y[0] - v_d) / (r_off + r_e) if math.isfinite(r_e) else y[0], -1)
     sol = solve_ivp(off, (0, 1.0), [i, 0.0, 0.0, 0.0], events=[zero], **opts)
     i_block = float(sol.y[0, -1])   # the flux's tail through R_e alone: the field's last energy
-    out.update(copper_j=r_coil * (sq + sol.y[1, -1]), freewheel_j=v_d * sol.y[2, -1], zero=float(sol.t[-1]),
+    out.update(copper_j=r_coil * (sq + sol.y[1, -1]), zero=float(sol.t[-1]),
+               freewheel_j=(v_d + v_main if clamp else v_d) * sol.y[2, -1],
+               main_j=v_main * sol.y[2, -1] if clamp else 0.0,
                eddy_j=eddy_on + sol.y[3, -1] + (0.5 * lc * i_block**2 if math.isfinite(r_e) else 0.0),
                work=(a.spring_preload + a.load_force) * a.stroke + 0.5 * a.spring_rate * a.stroke**2
                + damp + 0.5 * a.mass * out["impact"]**2)
@@ -156,7 +164,8 @@ def set_pulse_against_reference(drive, d):
     relative (the armature's share against the mechanical work 1e-4): the latest seat, the
     fastest and the longest pulse, the capacitor at its end, the highest (terminal) current
     at a turn-off, the energy from the boost, the copper's, the freewheel diode's, the eddy
-    resistance's (0 without one), the armature's; the balance closes. Returns the pulse and
+    resistance's (0 without one), the main supply's in a clamp's decay (0 without one), the
+    armature's; the balance closes. Returns the pulse and
     the reference at the highest current's corner, both sides."""
     assert d.ok, [(c.name, c.detail) for c in d.checks if not c.ok]
     p = next(p for p in d.latch.pulses if p.name == "set")
@@ -184,10 +193,11 @@ def set_pulse_against_reference(drive, d):
     assert p.supply_j == pytest.approx(ref["supply_j"], rel=1e-5) and b.energy_j == pytest.approx(p.supply_j)
     assert p.copper_j == pytest.approx(ref["copper_j"], rel=1e-5)
     assert p.freewheel_j == pytest.approx(ref["freewheel_j"], rel=1e-5)
+    assert p.main_supply_j == pytest.approx(ref["main_j"], rel=1e-5, abs=1e-15)
     assert p.eddy_j == pytest.approx(ref["eddy_j"], rel=1e-5, abs=1e-15)
     assert p.armature_j == pytest.approx(ref["work"], rel=1e-4)
-    assert p.supply_j == pytest.approx(p.copper_j + p.switch_sense_j + p.boost_j + p.freewheel_j + p.eddy_j
-                                       + p.armature_j)
+    assert p.supply_j + p.main_supply_j == pytest.approx(p.copper_j + p.switch_sense_j + p.boost_j + p.freewheel_j
+                                                         + p.eddy_j + p.armature_j)
     return p, tops
 
 
