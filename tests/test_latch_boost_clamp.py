@@ -36,11 +36,11 @@ from coildrive.design.latch import design_latch
 VALVE = EXAMPLES / "latching" / "shutoff-valve-boost-reset-winding-12v.toml"
 
 
-def _clamped(tmp_path, clamp: str = "60 V", extra: str = "", example=VALVE):
+def _clamped(tmp_path, clamp: str = "60 V", extra: str = "", example=VALVE, board: str = "lab-m32-zener"):
     text = example.read_text().replace('board = "lab-m32-zener"',
-                                     f'board = "{example.parents[2] / "boards" / "lab-m32-zener"}.toml"')
+                                       f'board = "{example.parents[2] / "boards" / board}.toml"')
     assert text.count('type = "diode"') == 1, "precondition: the example's freewheel diodes"
-    path = tmp_path / f"clamp-{clamp.split()[0]}-{example.stem}.toml"
+    path = tmp_path / f"clamp-{clamp.split()[0]}-{example.stem}-{board}.toml"
     text = text.replace('type = "diode"', f'type = "clamp"\nclamp_voltage = "{clamp}"')
     path.write_text(text.replace('boost_power = "1 W"', 'boost_power = "1 W"' + extra, 1))
     return path
@@ -104,6 +104,17 @@ def test_simulate_header_emulate_check(clamped, tmp_path):
                                                           rel=1e-6)
     # emulate -> check passes; twice the inductance fails (the clamp's decay hardly depends on R)
     device_checks(d, tmp_path, {"inductance_scale": 2.0})
+
+
+def test_a_high_side_switch_s_node_swings_to_the_main_supply_less_the_clamp(tmp_path):
+    # hand-worked: the clamp across a high-side switch holds its node at V_main - V_clamp in
+    # the decay, 9 - 45 = -36 V at the lowest main supply; the balance closes
+    d = design_latch(load_drive(_clamped(tmp_path, "45 V", board="sourcing-hs-zener")))
+    assert d.ok, [(c.name, c.detail) for c in d.checks if not c.ok]
+    for p in d.latch.pulses:
+        assert p.lowest_node_v == pytest.approx(9.0 - 45.0) and p.peak_switch_voltage_v == pytest.approx(45.0)
+        assert p.supply_j + p.main_supply_j == pytest.approx(p.copper_j + p.switch_sense_j + p.boost_j
+                                                             + p.freewheel_j, rel=1e-9)
 
 
 def test_a_clamp_below_the_boost_fails_and_a_drooping_main_supply_is_refused(tmp_path):
