@@ -305,9 +305,10 @@ def test_the_compiled_driver_in_the_loop_passes_check(valve, tmp_path, monkeypat
     driver_in_the_loop(path, d, tmp_path, monkeypatch)
 
 
-def driver_in_the_loop(path, d, tmp_path, monkeypatch) -> None:
+def driver_in_the_loop(path, d, tmp_path, monkeypatch, fault: dict | None = None) -> None:
     """:func:`test_the_compiled_driver_in_the_loop_passes_check` of the drive at ``path``
-    (its design ``d``)."""
+    (its design ``d``; ``fault``: the :class:`DeviceOptions` that fail, 40 % more resistance
+    unless given)."""
     from test_emulator_device import capture_of, run as run_device
     from conftest import require_tool
     from coildrive.bench.device import DeviceOptions
@@ -322,9 +323,9 @@ def driver_in_the_loop(path, d, tmp_path, monkeypatch) -> None:
     r = run_cli("firmware-driver", str(path), "--out", str(tmp_path / "fw"))
     assert r.returncode == 0, r.stderr
     lib = build_latch_firmware(tmp_path / "fw", d)
-    for name, scale, ok in (("good", 1.0, True), ("hot", 1.4, False)):
+    for name, options, ok in (("good", {}, True), ("bad", fault or {"resistance_scale": 1.4}, False)):
         dev = LatchFirmwareDevice(d, lib, pulse_switches(d), DeviceOptions(noise_codes=0.5, seed=5, supply=9.0,
-                                                                           coil_temp=100.0, resistance_scale=scale))
+                                                                           coil_temp=100.0, **options))
         msgs, _ = run_device(dev, 0.05 + dev.interval + 2.2 * dev.period, step=0.05)
         rep = check_latch_capture(capture_of(msgs, tmp_path / f"{name}.cdcap"), d, coil_temp=100.0)
         assert rep.ok is ok and not dev.faults, (name, [(i.name, i.status, i.detail) for i in rep.items])

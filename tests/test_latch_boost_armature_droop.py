@@ -29,7 +29,7 @@ import pytest
 
 from conftest import run_cli
 from test_latch_boost import header_holds
-from test_latch_boost_armature import VALVE, _side, reference
+from test_latch_boost_armature import VALVE, _side, driver_in_the_loop, reference
 from test_latch_boost_droop import _bus_ivp, simulated_bus
 
 from coildrive.config import load_drive
@@ -100,3 +100,9 @@ def test_simulate_header_and_check(droop, tmp_path):
     cap = capture_of(run_device(dev, 0.05 + 2.2 * dev.period, step=0.05)[0], tmp_path / "g.cdcap")
     rep = check_latch_capture(cap, d, coil_temp=100.0)
     assert rep.ok, [(i.name, i.status, i.detail) for i in rep.items]
+
+
+def test_the_compiled_driver_in_the_loop_passes_check(droop, tmp_path, monkeypatch):
+    """The compiled latch driver (gcc) in the model's device on the drooping main supply, the
+    plunger's run from the boost (plumbing) -> check passes; 40 % more resistance fails."""
+    driver_in_the_loop(droop[0], droop[2], tmp_path, monkeypatch)

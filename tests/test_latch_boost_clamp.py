@@ -15,7 +15,8 @@ winding-12v.toml) with a 60 V clamp across each switch instead of the diodes. Re
 * hand-worked: the RL decay through the clamp from ``i_0`` reaches zero after ``L/R ln(1 + R
   i_0 / (V_clamp - V_main))`` (the first-order step response, any circuits text), against
   simulate's set pulse at 9 V, 20 degC; the switch held at the clamp's 60 V;
-* the model's device -> capture -> check (plumbing): passes, and fails twice the inductance.
+* the model's device and the compiled latch driver (gcc) in the loop -> capture -> check
+  (plumbing): passes, and fails twice (1.4 times, the driver's) the inductance.
 """
 
 from __future__ import annotations
@@ -28,7 +29,7 @@ import pytest
 
 from conftest import EXAMPLES, run_cli
 from test_latch_boost import header_holds, reset_pulse_energies
-from test_latch_boost_armature import VALVE as PLUNGER, device_checks, set_pulse_against_reference
+from test_latch_boost_armature import VALVE as PLUNGER, device_checks, driver_in_the_loop, set_pulse_against_reference
 
 from coildrive.config import load_drive
 from coildrive.design.latch import design_latch
@@ -104,6 +105,12 @@ def test_simulate_header_emulate_check(clamped, tmp_path):
                                                           rel=1e-6)
     # emulate -> check passes; twice the inductance fails (the clamp's decay hardly depends on R)
     device_checks(d, tmp_path, {"inductance_scale": 2.0})
+
+
+def test_the_compiled_driver_in_the_loop_passes_check(clamped, tmp_path, monkeypatch):
+    """The compiled latch driver (gcc) in the model's device, each decay through the clamp
+    (plumbing) -> check passes; 40 % more inductance fails."""
+    driver_in_the_loop(clamped[0], clamped[2], tmp_path, monkeypatch, {"inductance_scale": 1.4})
 
 
 def test_a_high_side_switch_s_node_swings_to_the_main_supply_less_the_clamp(tmp_path):
