@@ -75,9 +75,13 @@ def _side(drive, high: bool):
     return s.boost * (1 + sign * s.boost_tolerance), s.boost_capacitance * (1 + sign * s.boost_capacitance_tolerance)
 
 
-def _netlist(drive, v_main, r_coil, ind, v_b, c_b, trip, late, tend, step, r_eddy=None):
+def _netlist(drive, v_main, r_coil, ind, v_b, c_b, trip, late, tend, step, r_eddy=None, clamp=None):
     """The set pulse from the boost with ngspice's own threshold turn-off (module docstring);
-    ``r_eddy`` ohm: an eddy resistance across the winding's inductance (``eeddy`` its energy)."""
+    ``r_eddy`` ohm: an eddy resistance across the winding's inductance (``eeddy`` its energy);
+    ``clamp`` V: a clamp across the switch (drain to a ``clamp`` V source through an ideal
+    one-way device) instead of the diode across the winding, ``D_m`` then without its drop
+    as the design takes the main supply at the top (``efw`` the clamp's energy, ``emain``
+    the main supply's, ``vdmax`` the switch's highest voltage)."""
     sw, sense, v_d = drive.switch.on_resistance, drive.board.sense.resistance, drive.freewheel.diode_drop
     i_q = 1e-3                      # A into the timing capacitor: 0.5 V after `late` s
     c_q = 2.0 * i_q * late
@@ -85,14 +89,15 @@ def _netlist(drive, v_main, r_coil, ind, v_b, c_b, trip, late, tend, step, r_edd
         "* latching coil: set pulse from the boost capacitor, threshold turn-off",
         f"CB cb 0 {c_b!r} IC={v_b!r}", "VMB boost cb DC 0",
         "SB boost top ref q SWB", knee("BDB", "top", "boost", v_d),
-        f"VMAIN main 0 DC {v_main!r}", knee("BDM", "main", "top", v_d),
+        f"VMAIN main 0 DC {v_main!r}", knee("BDM", "main", "top", 0.0 if clamp else v_d),
         # with both switches open the freewheel loop floats: 1 Mohm to the main supply sets
         # its level (31 uA from the boost in the pulse: a 1e-6 share of its energy)
         "RTOP top main 1e6",
         "VM top n1 DC 0", f"RSENSE n1 n2 {sense!r}", f"RCOIL n2 n3 {r_coil!r}", f"LCOIL n3 drain {ind!r} IC=0",
         *([] if r_eddy is None else [f"REDDY n3 drain {r_eddy!r}"]),
         "S1 drain 0 ref q SW1", knee("BD1", "0", "drain", v_d),
-        "VFW drain dfw DC 0", knee("BFW", "dfw", "top", v_d),
+        *(["VFW drain dfw DC 0", knee("BFW", "dfw", "top", v_d)] if clamp is None else
+          ["VFW drain dfw DC 0", knee("BFW", "dfw", "cl", 0.0), f"VCL cl 0 DC {clamp!r}"]),
         # the comparator and its tick: charging starts at the trip current and latches
         "VREF ref 0 DC 1",
         f"BQ 0 q I = ((i(VM) > {trip!r}) || (v(q) > 1e-3)) && (v(q) < 2) ? {i_q!r} : 0",
@@ -107,7 +112,9 @@ def _netlist(drive, v_main, r_coil, ind, v_b, c_b, trip, late, tend, step, r_edd
         "meas tran ioff FIND i(VM) WHEN v(q)=0.5 RISE=1",
         "meas tran vcoff FIND v(boost) WHEN v(q)=0.5 RISE=1",
         f"let pcap = -v(boost) * i(VMB)", f"let pcu = i(VM) * i(VM) * {r_coil!r}",
-        "let pfw = (v(drain) - v(top)) * i(VFW)",
+        "let pfw = (v(drain) - v(top)) * i(VFW)" if clamp is None else "let pfw = v(drain) * i(VFW)",
+        *([] if clamp is None else ["let pmain = -v(main) * i(VMAIN)", f"meas tran emain INTEG pmain from=0 to={tend!r}",
+                                    f"meas tran vdmax MAX v(drain) from=0 to={tend!r}"]),
         f"meas tran ecap INTEG pcap from=0 to={tend!r}",
         f"meas tran ecu INTEG pcu from=0 to={tend!r}",
         f"meas tran efw INTEG pfw from=0 to={tend!r}",

@@ -12,6 +12,8 @@ winding-12v.toml) with a 60 V clamp across each switch instead of the diodes. Re
   (test_latch_boost.reset_pulse_energies): the boost's, the copper's, the switch and sense
   resistor's, the boost path's, the clamp's and the main supply's energy and the field's at
   the turn-off within 1e-6, and the balance;
+* ngspice: the set pulse's deck of test_latch_boost with the clamp across the switch (its
+  energies, the switch's highest voltage and the time to zero at the energy corner, 1 %);
 * hand-worked: the RL decay through the clamp from ``i_0`` reaches zero after ``L/R ln(1 + R
   i_0 / (V_clamp - V_main))`` (the first-order step response, any circuits text), against
   simulate's set pulse at 9 V, 20 degC; the switch held at the clamp's 60 V;
@@ -76,6 +78,42 @@ def test_the_plunger_valve_s_set_pulse_with_a_clamp_against_solve_ivp(tmp_path):
     drive = load_drive(_clamped(tmp_path, example=PLUNGER))
     p, _ = set_pulse_against_reference(drive, design_latch(drive))
     assert p.main_supply_j > 0 and p.peak_switch_voltage_v == pytest.approx(60.0)
+
+
+@pytest.mark.ngspice
+def test_set_pulse_and_its_clamped_decay_against_ngspice(clamped, tmp_path):
+    """ngspice: test_latch_boost's deck of the set pulse (the boost capacitor, both switches
+    with ngspice's own threshold turn-off one tick after the trip current, D_m and the main
+    supply) with a 60 V clamp across the winding's switch in place of its diode, at the
+    energy corner: the current at the turn-off, the boost's, the copper's, the clamp's and
+    the main supply's energy, the switch's highest voltage and the time to zero, within 1 %."""
+    from test_latch_boost import _netlist, _side
+    from test_reference_ngspice_latch import _corner
+    from ngspice_run import run
+    from coildrive.model import boost as boost_model
+    from coildrive.model.circuit import loop
+    from coildrive.model.rl import decay_time
+
+    _, drive, d = clamped
+    p = d.latch.pulses[0]
+    b = p.boost
+    v, temp, rf, lf = _corner(p.energy_corner)
+    high = "the boost at its highest" in p.energy_corner
+    lp, rel = loop(drive, v, temp, rf, lf), loop(drive, v, temp, rf, lf, path="release")
+    v_b, c_b = _side(drive, high)
+    late = 1.0 / drive.board.tick.rate
+    bm = boost_model.boost(v_b, c_b, float(lp.r_on) + drive.supply.boost_resistance, float(lp.inductance))
+    t_off = float(boost_model.threshold_time(b.trip_max_a, bm)) + late
+    i_off = float(boost_model.state(t_off, bm)[0])
+    t_zero = float(decay_time(0.0, i_off, rel.r_off, rel.v_off, float(lp.inductance)))
+    step = t_off / 4000
+    res = run(tmp_path, "latch-boost-clamp", _netlist(drive, v, float(lp.r_coil), float(lp.inductance), v_b, c_b,
+                                                      b.trip_max_a, late, t_off + 1.3 * t_zero, step, clamp=60.0))
+    assert res["ioff"] == pytest.approx(i_off, rel=0.01), (res["ioff"], i_off)
+    for key, ours in (("ecap", p.supply_j), ("ecu", p.copper_j), ("efw", p.freewheel_j),
+                      ("emain", p.main_supply_j), ("vdmax", p.peak_switch_voltage_v)):
+        assert res[key] == pytest.approx(ours, rel=0.01), (key, res[key], ours)
+    assert abs(res["tzero"] - res["toff"] - t_zero) <= 0.01 * t_zero + step, (res["tzero"] - res["toff"], t_zero)
 
 
 def test_simulate_header_emulate_check(clamped, tmp_path):
