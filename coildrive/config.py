@@ -1447,10 +1447,12 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
     through the boost switch's body diode, on a stiff main supply), a stiff or a drooping
     main supply (the boost converter's draw on it:
     :func:`coildrive.design.latch_boost.main_bus`) and no settle time after the reset pulse;
-    with an ``[armature]`` a linear coil and its reset winding on a stiff main supply (the
-    set pulse's seat run from the boost capacitor: the design refuses in one line where it
-    is not on the seat when the current reaches the threshold,
-    :func:`coildrive.design.latch_boost.armature_pulse`)."""
+    with an ``[armature]`` a linear coil and its reset winding on a stiff or a drooping main
+    supply (the set pulse's seat run from the boost capacitor: the design refuses in one
+    line where it is not on the seat when the current reaches the threshold,
+    :func:`coildrive.design.latch_boost.armature_pulse`; the main bus sees only the
+    converter's recharge of the run's energy), an eddy term on the set winding too (from a
+    boost capacitor: its loss is a state of that run)."""
     if switch.topology == "full_bridge" and not supply.boost_capacitance > 0:
         return "supply.boost_capacitance", ("a latching coil on a full bridge from an ideal boost (each fast "
                                             "decay returns into the boost capacitor: give its capacitance)")
@@ -1461,16 +1463,18 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
         return (("coil.flux_current" if coil.flux_current else "coil.eddy_resistance"),
                 "a latching coil on a full bridge from the boost with a flux-linkage curve or an eddy-current "
                 "term (its fast decay back into the boost capacitor: a linear coil)")
-    if armature is not None and supply.droops:
-        return "supply.source_resistance", ("a latching coil with a moving armature from the boost on a drooping "
-                                            "main supply (a stiff main supply only)")
     reset = latch.reset_coil if latch is not None else None
-    if armature is not None and (coil.flux_current or coil.eddy_resistance
-                                 or (reset is not None and (reset.flux_current or reset.eddy_resistance))):
-        return (("coil.flux_current" if coil.flux_current or (reset is not None and reset.flux_current)
-                 else "coil.eddy_resistance"),
-                "a latching coil with a moving armature from the boost with a flux-linkage curve or an "
-                "eddy-current term (the set pulse's seat run from the boost: a linear coil)")
+    if armature is not None and (coil.flux_current or (reset is not None and reset.flux_current)):
+        return "coil.flux_current", ("a latching coil with a moving armature from the boost with a flux-linkage "
+                                     "curve (the set pulse's seat run from the boost: a linear coil, an eddy "
+                                     "term on the set winding too)")
+    if armature is not None and reset is not None and reset.eddy_resistance:
+        return "reset_coil.eddy_resistance", ("a latching coil with a moving armature from the boost with an "
+                                              "eddy-current term on the reset winding (the set winding's only)")
+    if armature is not None and coil.eddy_resistance and not supply.boost_capacitance > 0:
+        return "supply.boost_capacitance", ("a latching coil with a moving armature and an eddy-current term "
+                                            "from an ideal boost (the set pulse's eddy loss is followed on a "
+                                            "boost capacitor's run: give its capacitance)")
     if latch is not None and latch.reset_settle_time > 0:
         return "reset.settle_time", ("a reset settle time (each pulse from the boost ends at its current "
                                      "threshold, not at a time after it)")
@@ -1513,8 +1517,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     A latching coil's set and reset pulses from the boost, each ending at its own threshold
     (:mod:`coildrive.design.latch_boost`; a linear coil or a curve, an eddy term too; on a
     full bridge a linear coil, the boost feeding both legs' high side and each fast decay
-    returning into the boost capacitor): what
-    :func:`_boosted_latch_refusal` allows.
+    returning into the boost capacitor; a clamp across the switch on a stiff main supply,
+    whose decay draws on it): what :func:`_boosted_latch_refusal` allows.
     Anything else is refused in one line."""
     if not supply.boosted:
         return
@@ -1534,10 +1538,10 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                                    "linear coil's, a curve's or an eddy term's on a linear coil)")
     elif hold.mode == "latch" and _boosted_latch_refusal(coil, switch, supply, armature, latch):
         key, why = _boosted_latch_refusal(coil, switch, supply, armature, latch)
-    elif hold.mode == "latch" and freewheel.type == "clamp":
+    elif hold.mode == "latch" and freewheel.type == "clamp" and supply.droops:
         key, why = "freewheel.type", ("a latching coil's pulses from the boost with a clamp across the switch "
-                                      "(the clamp's draw after each pulse is the main bus's: modelled without "
-                                      "a boost only)")
+                                      "on a drooping main supply (the clamp's draw on it after each pulse, with "
+                                      "the converter's: a stiff main supply only)")
     elif armature is not None and supply.droops and freewheel.type == "clamp" and freewheel.split_decay:
         key, why = "freewheel.split_decay", ("a drooping main supply, a moving armature and a clamp bypassed "
                                              "in the hold (split decay: the clamp's draw from the bus while "
@@ -1566,8 +1570,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; a "
                          "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, or a "
                          "linear coil on a full bridge with a boost capacitor on a stiff main supply; a stiff or a "
-                         "drooping main supply, no reset settle_time; with [armature] a linear coil on a stiff main "
-                         "supply, seated by the set pulse's threshold")
+                         "drooping main supply (a clamp on a stiff one), no reset settle_time; with [armature] a "
+                         "linear coil (an eddy term on the set winding from a boost capacitor too), seated by the "
+                         "set pulse's threshold")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,

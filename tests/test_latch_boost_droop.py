@@ -71,6 +71,33 @@ def _bus_ivp(v_s, r_s, c, p, phases, v0=None):
     return ends, sols
 
 
+def simulated_bus(path, d, tmp_path, power: float, c_bus: float) -> np.ndarray:
+    """``simulate`` at 9 V, coil 120 degC of the drive at ``path`` (its design ``d``: a 40 V,
+    220 uF boost recharged at ``power`` W, 85 % efficient, behind 2 ohm with ``c_bus`` F):
+    its ``main_bus_v`` column, checked against scipy solve_ivp -- full until the set pulse
+    ends, the draw while its energy goes back (the boost_v column's recharge back to 40 V),
+    rest, the same after the reset -- within 1e-6."""
+    csv = tmp_path / "w.csv"
+    r = run_cli("simulate", str(path), "--supply", "9", "--coil-temp", "120", "--csv", str(csv))
+    assert r.returncode == 0, r.stderr
+    w = np.genfromtxt(csv, delimiter=",", names=True)
+    assert w.dtype.names[-2:] == ("boost_v", "main_bus_v")
+    t, boost, bus = w["time_s"], w["boost_v"], w["main_bus_v"]
+    gap = d.latch.interval_s
+    # each pulse ends where the boost capacitor is lowest (it falls while the pulse runs)
+    ends = [int(np.argmin(np.where(part, boost, np.inf))) for part in (t < gap, t >= gap)]
+    lows = [float(t[k]) for k in ends]
+    draws = [0.5 * 220e-6 * (40.0**2 - float(boost[k]) ** 2) / power for k in ends]
+    phases = [(lows[0], False), (draws[0], True), (lows[1] - lows[0] - draws[0], False), (draws[1], True),
+              (t[-1] - lows[1] - draws[1] + 1e-6, False)]
+    _, sols = _bus_ivp(9.0, 2.0, c_bus, power / 0.85, phases)
+    edges = np.cumsum([0.0] + [x for x, _ in phases])
+    ref = np.concatenate([sol.sol(t[(t >= a) & (t < b)] - a)[0] for sol, a, b in zip(sols, edges, edges[1:])
+                          if np.any((t >= a) & (t < b))])
+    assert bus == pytest.approx(ref, rel=1e-6)
+    return bus
+
+
 def test_lowest_main_bus_against_solve_ivp_and_by_hand(droop):
     path, d = droop
     assert d.ok, [(c.name, c.detail) for c in d.checks if not c.ok]
@@ -124,26 +151,7 @@ def test_simulate_check_and_a_curve_with_eddy_terms(droop, tmp_path):
     from coildrive.bench.latch_device import LatchDevice
 
     path, d = droop
-    csv = tmp_path / "w.csv"
-    r = run_cli("simulate", str(path), "--supply", "9", "--coil-temp", "120", "--csv", str(csv))
-    assert r.returncode == 0, r.stderr
-    w = np.genfromtxt(csv, delimiter=",", names=True)
-    assert w.dtype.names[-2:] == ("boost_v", "main_bus_v")
-    # scipy solve_ivp: full until the set pulse ends, the draw while its energy goes back
-    # (the boost_v column's recharge back to 40 V at 1 W), rest, the same after the reset
-    t, boost, bus = w["time_s"], w["boost_v"], w["main_bus_v"]
-    gap = d.latch.interval_s
-    # each pulse ends where the boost capacitor is lowest (it falls while the pulse runs)
-    ends = [int(np.argmin(np.where(part, boost, np.inf))) for part in (t < gap, t >= gap)]
-    lows = [float(t[k]) for k in ends]
-    draws = [0.5 * 220e-6 * (40.0**2 - float(boost[k]) ** 2) / 1.0 for k in ends]
-    phases = [(lows[0], False), (draws[0], True), (lows[1] - lows[0] - draws[0], False), (draws[1], True),
-              (t[-1] - lows[1] - draws[1] + 1e-6, False)]
-    _, sols = _bus_ivp(9.0, 2.0, 1e-3, 1.0 / 0.85, phases)
-    edges = np.cumsum([0.0] + [x for x, _ in phases])
-    ref = np.concatenate([sol.sol(t[(t >= a) & (t < b)] - a)[0] for sol, a, b in zip(sols, edges, edges[1:])
-                          if np.any((t >= a) & (t < b))])
-    assert bus == pytest.approx(ref, rel=1e-6)
+    bus = simulated_bus(path, d, tmp_path, power=1.0, c_bus=1e-3)
     assert bus.min() < 8.9 and bus[0] == 9.0
     # emulate -> check (the model's device: plumbing)
     dev = LatchDevice(d, DeviceOptions(noise_codes=0.5, seed=5, supply=9.0, coil_temp=100.0))

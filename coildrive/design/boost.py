@@ -117,18 +117,20 @@ def firmware_peak(design, supply: float, coil_temp: float, r_factor: float = 1.0
     return min(t, design.pull_in.peak_time_s or 0.0)
 
 
-def armature_trip_time(drive: Drive, lp, l_factor: float, trip: float) -> float:
+def armature_trip_time(drive: Drive, lp, l_factor: float, trip: float, eddy: bool = False) -> float:
     """s from switch-on until the coil's current first reaches ``trip`` A with the moving
     armature, from the boost at its nominal charge and capacitance, at the one point of
-    ``lp`` (``inf`` never): :func:`coildrive.model.armature_runs.pull_in` with the boost as
+    ``lp`` (``inf`` never; ``eddy``: with the coil's eddy term, the trip on the terminal
+    current the sense reads -- the latch's set pulse; :func:`firmware_peak` runs the coil
+    without it): :func:`coildrive.model.armature_runs.pull_in` with the boost as
     its source (:func:`coildrive.model.armature_boost.boost_params`)."""
     from ..model.armature import params_from_loop
     from ..model.armature_boost import boost_params
     from ..model.armature_runs import pull_in
 
     s = drive.supply
-    pb = boost_params(params_from_loop(drive.armature, lp, l_factor), s.boost, s.boost_capacitance,
-                      s.boost_resistance)
+    pb = boost_params(params_from_loop(drive.armature, lp, l_factor, drive.coil.eddy_resistance if eddy else 0.0),
+                      s.boost, s.boost_capacitance, s.boost_resistance)
     return float(pull_in(pb, trip=trip).trip_time[0])
 
 

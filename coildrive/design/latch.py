@@ -118,7 +118,10 @@ class PulseResult:
     ``supply_j`` is the sum of the other five. From the boost (``[supply] boost``,
     :mod:`coildrive.design.latch_boost`): ``supply_j`` is the boost's, ``boost_j`` the boost
     path's ``R_b`` (``supply_j`` the sum of copper, switch and sense, boost path,
-    freewheel and eddy, and on a bridge ``returned_j``), ``boost`` the pulse's threshold, time-out, droop, energy and recharge (the
+    freewheel and eddy, and on a bridge ``returned_j``; with a clamp across the switch
+    ``main_supply_j`` is what the main supply gives in the decay, ``V_main int i dt``, its
+    current flowing from the main bus through the winding and the clamp: the sum is then
+    ``supply_j + main_supply_j``), ``boost`` the pulse's threshold, time-out, droop, energy and recharge (the
     boosted peak's :class:`~coildrive.design.result.BoostResult`), ``ticks`` the time-out
     and ``shortest_s`` the fastest time to the threshold. ``stored_j``: the energy in the coil's field when the pulse ends (there), which
     its decay takes out again: ``int_0^I i dpsi`` on a flux-linkage curve (``I psi(I) -
@@ -180,6 +183,7 @@ class PulseResult:
     eddy_j: float = 0.0
     boost_j: float = 0.0
     boost: BoostResult | None = None
+    main_supply_j: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -601,7 +605,7 @@ def _boosted(drive: Drive, wd: Drive, pts: Points, name: str, winding: str, swit
         governed_by="current threshold" if reached else "", end_current_a=b.threshold_a if reached else 0.0,
         not_reached=not_reached, supply_j=e["supply_j"], copper_j=e["copper_j"],
         switch_sense_j=e["switch_sense_j"], freewheel_j=e["freewheel_j"], returned_j=e["returned_j"],
-        boost_j=e["boost_j"], eddy_j=e["eddy_j"],
+        boost_j=e["boost_j"], eddy_j=e["eddy_j"], main_supply_j=e["main_supply_j"],
         stored_j=e["stored_j"], energy_corner=pts.label(e["k"]) + (", the boost at its highest" if e["high"]
                                                                    else ", the boost at its lowest"),
         decay_time_s=e["decay_time_s"], peak_switch_voltage_v=b.switch_voltage_v,

@@ -70,7 +70,13 @@ seated coil's closed form from the boost capacitor
 (:func:`coildrive.model.armature_boost.seated_on`): the end current, the capacitor, the
 energy ``1/2 C (V_b^2 - u^2)`` and ``int i^2 dt`` are the run's. The balance above then has
 one more term, the armature's (``armature_j``: the spring's and the load's work, the
-damping's heat and the seat's impact), its remainder.
+damping's heat and the seat's impact), its remainder. With an eddy term on the set winding
+(from a boost capacitor) the run is the branch's (the force on the magnetising current, the
+threshold and ``int i^2 dt`` on the terminal current, the switch turning that off) and
+carries the eddy resistance's loss as a state of its own
+(:func:`coildrive.model.armature_runs.pull_in`'s ``eddy_loss``), so ``E_eddy`` is computed,
+that plus the release's, and the remainder stays the mechanical work. On a drooping main
+supply the converter's draw after the set pulse is the run's energy (:func:`main_bus`).
 """
 
 from __future__ import annotations
@@ -135,8 +141,11 @@ class ArmaturePulse:
     :func:`coildrive.design.boost.boost_figures` takes of a moving armature (a
     :class:`~coildrive.design.boost_armature.BoostRuns` without a hold: ``slow`` is
     ``seated``, ``duty`` 0, ``window`` 0). ``ends``: per side (``False`` lowest, ``True``
-    highest) ``(current A, int i^2 dt A^2*s, energy from the boost J)`` at the end of the
-    pulse that ends at the highest trip current one tick late (0 where never)."""
+    highest) ``(magnetising current A, terminal current A, int i^2 dt A^2*s, energy from
+    the boost J, eddy loss J)`` at the end of the pulse that ends at the highest trip current
+    one tick late (0 where never; without an eddy term both currents the coil's, the loss 0;
+    with one ``int i^2 dt`` the terminal current's and the loss the run's
+    ``R_e int (i_m - i_t)^2 dt``)."""
 
     seat_time: np.ndarray
     seat_high: np.ndarray
@@ -157,24 +166,26 @@ def armature_pulse(wd: Drive, lp, l_factor, label, thr: tuple[float, int, float]
     from .boost_armature import BoostRuns, boosted_params
 
     i_th, _, i_trip = thr
-    p = params_from_loop(wd.armature, lp, l_factor)
+    p = params_from_loop(wd.armature, lp, l_factor, wd.coil.eddy_resistance)
+    eddy = p.eddy is not None
     dt = late(wd)
     first, ends, out = {}, {}, {}
     for high in (False, True):
         pb = boosted_params(wd, p, high)
-        pin = pull_in(pb, trip=i_th)
+        pin = pull_in(pb, trip=i_th, eddy_loss=eddy)
         open_ = np.flatnonzero(pin.status == TRIPPED)
         if open_.size:
             _refuse(wd, pb, pin, int(open_[np.argmin(pin.trip_time[open_])]), label, high, i_th)
         first[high] = pin
-        end = pull_in(pb, trip=i_trip) if i_trip > i_th else pin
+        end = pull_in(pb, trip=i_trip, eddy_loss=eddy) if i_trip > i_th else pin
         hit = np.isfinite(end.trip_time)
         y = seated_on(pb, np.where(hit, end.trip_state, 0.0), dt)
-        i_top = np.where(hit, pb.current(y[0], 0.0), 0.0)
-        drawn = np.where(hit, boost_energy(pb, y), 0.0)
-        ends[high] = (i_top, np.where(hit, y[4], 0.0), drawn)
         u = y[5] if pb.droops else pb.v_on
-        out[high] = (np.where(hit, end.trip_time + dt, np.inf), i_top, np.where(hit, u, np.nan), drawn)
+        i_top = np.where(hit, pb.current(y[0], 0.0), 0.0)
+        i_end = np.where(hit, pb.terminal(i_top, True, bus=u), 0.0)   # (what the switch turns off)
+        drawn = np.where(hit, boost_energy(pb, y), 0.0)
+        ends[high] = (i_top, i_end, np.where(hit, y[4], 0.0), drawn, np.where(hit, y[6], 0.0) if eddy else 0.0 * drawn)
+        out[high] = (np.where(hit, end.trip_time + dt, np.inf), i_end, np.where(hit, u, np.nan), drawn)
     seat = {h: np.where(first[h].status == SEATED, first[h].seat_time, np.inf) for h in (False, True)}
     seat_high = seat[True] > seat[False]
     low, high_ = out[False], out[True]
@@ -194,15 +205,22 @@ def _reachable(pb, pin) -> np.ndarray:
     higher) and the seated coil's highest from the seat's state on
     (:func:`coildrive.model.supply.top_from`;
     an ideal boost's RL rise, ``V_b / R``); at rest on the open stop for ever (or stalled in
-    flight, an estimate there) the open coil's (:func:`coildrive.model.supply.top_current`)."""
+    flight, an estimate there) the open coil's (:func:`coildrive.model.supply.top_current`).
+    With an eddy term (the threshold on the terminal current ``(u + R_e i_m)/(R + R_e)``)
+    those are the magnetising current's, taken with the capacitor at its seat (or full) as
+    an upper bound of the terminal current's (the capacitor only falls while the current
+    flows); the hump is the terminal current's already."""
     from ..model import supply as bus_model
     from ..model.armature import SEATED
 
     seated = pin.status == SEATED
     if pb.droops:
         open_top = bus_model.top_current(pb.bus(True))
-        seat_top = bus_model.top_from(pb.bus(False), np.where(seated, pin.seat_current, 0.0),
-                                      np.where(seated, pin.seat_bus, pb.v_on))
+        u_seat = np.where(seated, pin.seat_bus, pb.v_on)
+        seat_top = bus_model.top_from(pb.bus(False), np.where(seated, pin.seat_current, 0.0), u_seat)
+        if pb.eddy is not None:
+            open_top = pb.terminal(open_top, True)
+            seat_top = pb.terminal(seat_top, True, bus=u_seat)
     else:
         open_top = pb.v_on / pb.r_on
         seat_top = np.maximum(np.where(seated, pin.seat_current, 0.0), open_top)
@@ -256,7 +274,8 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult, ends: dict | None
     ``eddy_j`` (an eddy term's resistance: on, freewheeling and the flux's tail; 0 without
     one), ``stored_j`` (the field's ``int i dpsi`` at the turn-off: ``1/2 L I^2`` for a
     linear coil, the magnetising branch's with an eddy term), ``armature_j`` (a moving
-    armature's, the remainder; 0 without ``ends``), and ``k`` the point, ``high`` the side;
+    armature's, the remainder; 0 without ``ends``), ``main_supply_j`` what the main supply gives in a clamp's decay (``V_main Q_d``; 0
+    for the other paths), and ``k`` the point, ``high`` the side;
     ``decay_time_s`` the longest time to zero (of the terminal current) after a pulse,
     ``end_current_a`` the highest (terminal) current it turns off and ``net_j`` the most
     the boost net gives (drawn less returned; over both sides). ``ends``: a moving
@@ -276,9 +295,8 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult, ends: dict | None
             s_on = m.square_integral(t, bb)
             drawn = m.energy_drawn(t, bb)
             i_end = m.terminal(i_top, v_top, bb)
-        else:   # a moving armature: a linear coil on one switch (config refuses the rest)
-            i_top, s_on, drawn = ends[high]
-            i_end = i_top
+        else:   # a moving armature: a linear coil on one switch, an eddy term too (config refuses the rest)
+            i_top, i_end, s_on, drawn, loss_on = ends[high]
         ind = lp.inductance
         sense = wd.board.sense
         r_sense = sense.resistance * sense_factor
@@ -295,6 +313,10 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult, ends: dict | None
             t_zero = decay_time(0.0, i_top, rel.r_off, rel.v_off, ind)
             q_d, s_d = decay_integrals(t_zero, i_top, rel.r_off, rel.v_off, ind)
             fw, returned = freewheel_element_energy(wd, rel, q_d, s_d), 0.0 * drawn
+        # a clamp across the switch: the decay's current flows from the main bus (the top back
+        # on it through its diode) through the winding and the clamp, L di/dt = -(R_off i +
+        # V_clamp - V_main): the main supply gives V_main int i dt
+        main = rel.supply * q_d if wd.freewheel.type == "clamp" and not bridge else 0.0 * drawn
         parts = {"supply_j": drawn, "copper_j": lp.r_coil * (s_on + s_d),
                  "switch_sense_j": (2.0 if bridge else 1.0) * wd.switch.on_resistance * s_on
                  + r_sense * (s_on + (s_d if bridge or sense.position == "coil" else 0.0)),
@@ -302,11 +324,11 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult, ends: dict | None
                  "freewheel_j": fw, "returned_j": returned,
                  # the on-time's share by the boost's balance, then the release's (the
                  # conduction, then the flux's tail through R_e alone)
-                 "eddy_j": (m.eddy_loss(t, bb) + release_eddy_energy(i_top, rel.r_off, rel.v_off, ind)
-                            if eddy else 0.0 * drawn),
-                 "stored_j": stored_energy(ind.magnetising if eddy else ind, i_top)}
+                 "eddy_j": ((m.eddy_loss(t, bb) if ends is None else loss_on)
+                            + release_eddy_energy(i_top, rel.r_off, rel.v_off, ind) if eddy else 0.0 * drawn),
+                 "stored_j": stored_energy(ind.magnetising if eddy else ind, i_top), "main_supply_j": main}
         # the armature's share: what the boost gave that no element took (zero current at both ends)
-        parts["armature_j"] = (drawn - sum(parts[n] for n in ("copper_j", "switch_sense_j", "boost_j", "freewheel_j",
+        parts["armature_j"] = (drawn + main - sum(parts[n] for n in ("copper_j", "switch_sense_j", "boost_j", "freewheel_j",
                                                               "returned_j", "eddy_j"))
                                if ends is not None else 0.0 * drawn)
         k = int(np.argmax(drawn))
@@ -343,7 +365,8 @@ def checks(name: str, b: BoostResult, wd: Drive) -> list[Check]:
     ``{name}_pulse`` check) and the boost capacitor above the main supply until it
     (``{name}_boost_droop``), worded as the boosted peak's
     (:func:`coildrive.design.boost.boost_checks`)."""
-    rename = {"boost_threshold": f"{name}_pulse", "boost_droop": f"{name}_boost_droop"}
+    rename = {"boost_threshold": f"{name}_pulse", "boost_droop": f"{name}_boost_droop",
+              "boost_clamp": f"{name}_boost_clamp"}
     return [Check(rename[c.name], c.ok, f"the {name} pulse from the boost: "
                   + c.detail.replace("the end of the peak", "the end of the pulse"))
             for c in boost.boost_checks(wd, b) if c.name in rename]
@@ -395,7 +418,7 @@ def _threshold_tick(wd: Drive, b: BoostResult, supply: float, coil_temp: float, 
     m = model.of(bb)
     trip = boost.nominal_trip(wd, b.threshold_code)
     t = (float(m.threshold_time(trip, bb, sensed=True)) if wd.armature is None
-         else boost.armature_trip_time(wd, lp, l_factor, trip))
+         else boost.armature_trip_time(wd, lp, l_factor, trip, eddy=True))
     rate = wd.board.tick.rate
     # the driver compares at each tick after the pulse's first: at the first at or after the crossing
     t = max(math.ceil(t * rate - 1e-9), 1) / rate if math.isfinite(t) else t
@@ -512,7 +535,8 @@ def _sample_armature(wd: Drive, lp, rel, l_factor, b: BoostResult, trip, v_facto
     from ..model.armature_runs import pull_in
 
     s = wd.supply
-    pb = boost_params(params_from_loop(wd.armature, lp, l_factor), s.boost * np.asarray(v_factor, float),
+    pb = boost_params(params_from_loop(wd.armature, lp, l_factor, wd.coil.eddy_resistance),
+                      s.boost * np.asarray(v_factor, float),
                       s.boost_capacitance * np.asarray(c_factor, float), s.boost_resistance)
     pin = pull_in(pb, trip=trip)
     seated = (pin.status == SEATED) & np.isfinite(pin.trip_time)

@@ -68,6 +68,8 @@ def latch_table(d: LatchDesign) -> Table:
                             if p.boost is not None and p.returned_j else "")
                          + (f", the armature {p.armature_j * 1e3:.4g} mJ" if p.armature_j else "")
                          + (f", the eddy currents {p.eddy_j * 1e3:.4g} mJ" if p.eddy_j else "")
+                         + (f"; the main supply gives {p.main_supply_j * 1e3:.4g} mJ more in the clamp's decay"
+                            if p.main_supply_j else "")
                          + f"; in the field at its end {p.stored_j * 1e3:.4g} mJ"))
         t.add_row(f"  after the {p.name} pulse", f"{p.decay_time_s * 1e3:.4g} ms",
                   escape(f"to zero current; switches up to {p.peak_switch_voltage_v:.4g} V "

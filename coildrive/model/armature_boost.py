@@ -474,9 +474,12 @@ def seated_on(p: ArmatureParams, y, dt) -> np.ndarray:
     from ``y`` with the armature at rest on the seat and the switch on: the seated coil's
     closed form (:func:`coildrive.model.supply.state_from` and
     :func:`~coildrive.model.supply.integrals_from` from the boost capacitor, the RL rise
-    from an ideal boost; ``q`` and ``sq`` accumulated). A linear coil without an eddy term:
-    a latching coil's set pulse from the boost, seated at its threshold, on for the tick
-    until the driver sees it (:mod:`coildrive.design.latch_boost`)."""
+    from an ideal boost; ``q`` and ``sq`` accumulated). A linear coil (with an eddy term
+    ``lambda`` is the branch's, ``q`` and ``sq`` the terminal current's, and a seventh row
+    of ``y``, the eddy loss of :func:`~coildrive.model.armature_runs.pull_in`'s
+    ``eddy_loss``, accumulates :func:`~coildrive.model.supply.eddy_loss_from`): a latching
+    coil's set pulse from the boost, seated at its threshold, on for the tick until the
+    driver sees it (:mod:`coildrive.design.latch_boost`)."""
     from .rl import rise_current, rise_integrals
 
     y = np.asarray(y, float)
@@ -486,7 +489,7 @@ def seated_on(p: ArmatureParams, y, dt) -> np.ndarray:
         b = p.bus(False)
         q, sq = bus_model.integrals_from(dt, b, i0, y[5])
         i, u = bus_model.state_from(dt, b, i0, y[5])
-        extra = [u]
+        extra = [u] + ([y[6] + bus_model.eddy_loss_from(dt, b, i0, y[5])] if y.shape[0] > 6 else [])
     else:
         q, sq = rise_integrals(dt, i0, p.v_on, p.r_on, p.coil_closed)
         i, extra = rise_current(dt, i0, p.v_on, p.r_on, p.coil_closed), []

@@ -73,7 +73,8 @@ class PullInBatch:
     seat_square: np.ndarray | None = None
     #: With a ``trip`` current (a boosted peak's threshold): when the coil's current first
     #: reaches it (s; ``inf``: never within the run) and the state then (rows of the run:
-    #: lambda, x, v, q, sq and the capacitor's u on a drooping bus; NaN where never).
+    #: lambda, x, v, q, sq and the capacitor's u on a drooping bus, and with ``eddy_loss``
+    #: the eddy resistance's ``R_e int (i_m - i_t)^2 dt``; NaN where never).
     #: ``status`` is TRIPPED where that came before the seat (the armature open or in
     #: flight: the run ends there), else as without a trip (a seated point's trip is the
     #: seated coil's closed-form rise from the seat).
@@ -98,7 +99,7 @@ def bus_time_scale(p: ArmatureParams) -> np.ndarray:
 
 
 def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: int = 4 * MAX_BOUNCES,
-            trip=None) -> PullInBatch:
+            trip=None, eddy_loss: bool = False) -> PullInBatch:
     """Switch on at t = 0 from rest at the open stop and follow the armature until seated.
 
     The rise before motion is closed form with the open inductance (the armature rests
@@ -123,16 +124,24 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     coil's closed-form rise from the seat (``trip_time``, ``trip_state``). ``p`` is then
     the peak's source: the boost (``v_on``; ``r_on`` with the boost path; a capacitor:
     ``capacitance`` with ``source_resistance = inf``, no source behind it).
+
+    ``eddy_loss`` (an eddy term on a drooping bus or a boost capacitor, a linear coil): the
+    run carries a seventh state, the eddy resistance's loss ``R_e int (i_m - i_t)^2 dt`` J
+    (``trip_state``'s last row): the flight integrates it
+    (:class:`~coildrive.model.armature_flight._Rhs`), the resting stretches add
+    :func:`coildrive.model.supply.eddy_loss_from` of their closed form.
     """
     n = len(p)
     if trip is not None and p.curves is not None:
         raise ValueError("pull_in's trip is on a linear coil's current (no curves)")
     droop = p.droops
     curved = droop and p.curves is not None
+    if eddy_loss and (p.eddy is None or not droop or curved):
+        raise ValueError("eddy_loss: an eddy term on a drooping bus or a boost capacitor, a linear coil")
     i_start = p.start_current
     l_open = p.coil_open
     want = None if peak_time is None else np.broadcast_to(np.asarray(peak_time, float), (n,)).copy()
-    query_y = np.full((6 if droop else 5, n), np.nan)
+    query_y = np.full((7 if eddy_loss else 6 if droop else 5, n), np.nan)
     low = low_until = None
     steps = np.zeros(n, int)
     if curved:
@@ -157,6 +166,7 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
         t_up = np.where(moves, t_start, 0.0)
         q0, s0 = bus_model.integrals_from(t_up, b_open, 0.0, p.v_on)
         u_start = bus_model.state(t_up, b_open)[1]
+        loss0 = bus_model.eddy_loss_from(t_up, b_open, 0.0, p.v_on) if eddy_loss else None
     else:
         i_inf = p.v_on / p.r_on
         moves = i_inf > i_start
@@ -167,7 +177,7 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     if curved:
         t_start = np.where(moves, t_start, np.inf)
     rows = [np.where(moves, lam_start * (1.0 + 1e-12), 0.0), p.stroke.copy(), np.zeros(n), q0, s0]
-    y = np.stack(rows + ([u_start] if droop else []))
+    y = np.stack(rows + ([u_start] if droop else []) + ([loss0] if eddy_loss else []))
     t = np.where(moves, t_start, 0.0)
     if not curved:
         f_inf = p.closing_force(p.flux_open(i_inf)) - p.opening_force(p.stroke)
@@ -179,13 +189,13 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     trip_time = trip_y = None
     if trip is not None:
         trip = np.broadcast_to(np.asarray(trip, float), (n,))
-        trip_time, trip_y = _early_trip(p, trip, np.where(moves, t_start, np.inf))
+        trip_time, trip_y = _early_trip(p, trip, np.where(moves, t_start, np.inf), eddy_loss)
         early = np.isfinite(trip_time)
         status = np.where(early, TRIPPED, status)
     impact_time, impact_speed, dip_current = nan.copy(), nan.copy(), nan.copy()
     seat_time = np.full(n, np.inf)
     seat_current = nan.copy()
-    seat_q, seat_s = nan.copy(), nan.copy()
+    seat_q, seat_s, seat_l = nan.copy(), nan.copy(), nan.copy()
     stall_gap = np.where(moves, np.nan, p.stroke)
     bounces = np.zeros(n, int)
     # the running highest current (with an eddy term on a drooping bus the terminal
@@ -245,6 +255,8 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
         if curved:
             seat_y = np.where(holds, y, seat_y)
         seat_q, seat_s = np.where(holds, y[3], seat_q), np.where(holds, y[4], seat_s)
+        if eddy_loss:
+            seat_l = np.where(holds, y[6], seat_l)
         active = active & ~holds
         # At the open stop with the force still too weak: rest there until the current
         # (closed form, open inductance) reaches the start current again.
@@ -287,6 +299,8 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
                 y[0] = np.where(reach, lam_start * (1.0 + 1e-12), np.where(stuck, p.flux_open(i_new), y[0]))
                 y[3] = np.where(stuck, y[3] + dq, y[3])
                 y[4] = np.where(stuck, y[4] + ds, y[4])
+                if eddy_loss:
+                    y[6] = np.where(stuck, y[6] + bus_model.eddy_loss_from(dt, b_open, i_now, u_now), y[6])
                 y[5] = np.where(stuck, u_new, y[5])
             elif stuck.any():
                 i_now = p.current(lam, p.stroke)
@@ -305,7 +319,7 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     seated = status == SEATED
     if trip is not None:
         trip_time, trip_y = _seated_trip(p, trip, seated, seat_time, seat_current, seat_bus, seat_q,
-                                         seat_s, trip_time, trip_y)
+                                         seat_s, trip_time, trip_y, seat_l if eddy_loss else None)
     dip_time = np.where(seated, impact_time, np.nan)
     dip_current = np.where(seated, dip_current, np.nan)
     hump = np.where(seated, np.maximum(peak[0], dip_current), np.nan)
@@ -337,40 +351,43 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
                        seat_charge=seat_q, seat_square=seat_s, trip_time=trip_time, trip_state=trip_y)
 
 
-def _early_trip(p: ArmatureParams, trip, t_start):
+def _early_trip(p: ArmatureParams, trip, t_start, eddy_loss: bool = False):
     """``(s, state)``: where the open coil's closed-form rise reaches ``trip`` A before the
-    motion's start ``t_start`` s, when and the state then (rows of :func:`pull_in`'s run);
-    ``inf`` and NaN elsewhere."""
+    motion's start ``t_start`` s, when and the state then (rows of :func:`pull_in`'s run;
+    ``eddy_loss``: the eddy loss's too); ``inf`` and NaN elsewhere."""
     n = len(p)
-    t, y = _rise_to(p, True, trip, np.zeros(n), p.v_on.astype(float))
+    t, y = _rise_to(p, True, trip, np.zeros(n), p.v_on.astype(float), eddy_loss)
     early = np.isfinite(t) & (t <= t_start)
     return np.where(early, t, np.inf), np.where(early, y, np.nan)
 
 
 def _seated_trip(p: ArmatureParams, trip, seated, seat_time, seat_current, seat_bus, seat_q, seat_s,
-                 trip_time, trip_y):
+                 trip_time, trip_y, seat_loss=None):
     """:func:`_early_trip`'s figures completed where the armature seated before the trip:
     the seated coil's closed-form rise from the seat's state to ``trip`` A (``inf`` where it
-    never gets there)."""
+    never gets there; ``seat_loss``: the eddy loss at the seat, carried on)."""
     if not seated.any():
         return trip_time, trip_y
     i0 = np.where(seated, seat_current, 0.0)
     u0 = np.where(seated, seat_bus, p.v_on) if p.droops else p.v_on.astype(float)
-    dt, y = _rise_to(p, False, trip, i0, u0)
+    dt, y = _rise_to(p, False, trip, i0, u0, seat_loss is not None)
     ok = seated & np.isfinite(dt)
     y[3] = y[3] + np.where(ok, seat_q, 0.0)
     y[4] = y[4] + np.where(ok, seat_s, 0.0)
+    if seat_loss is not None:
+        y[6] = y[6] + np.where(ok, seat_loss, 0.0)
     return np.where(ok, seat_time + dt, trip_time), np.where(ok, y, trip_y)
 
 
-def _rise_to(p: ArmatureParams, open_: bool, trip, i0, u0):
+def _rise_to(p: ArmatureParams, open_: bool, trip, i0, u0, eddy_loss: bool = False):
     """``(s, state)``: the armature resting on the open stop (``open_``) or the seat, the
     switch on from the magnetising current ``i0`` A (and on a drooping bus the capacitor at
     ``u0`` V): when the sensed current (with an eddy term the terminal current) first
     reaches ``trip`` A (``inf`` where never) and the run's state then (``q``, ``sq`` from
     this start; 0 rows where never). Closed form: :mod:`coildrive.model.supply` on a
     drooping bus (or a boost capacitor), :mod:`coildrive.model.rl` (an eddy term's
-    Thevenin pair) on a stiff one."""
+    Thevenin pair) on a stiff one. ``eddy_loss``: a last row, the eddy resistance's loss over
+    it (a drooping bus or a boost capacitor: :func:`coildrive.model.supply.eddy_loss_from`)."""
     n = len(p)
     coil = p.coil_open if open_ else p.coil_closed
     if p.droops:
@@ -379,7 +396,7 @@ def _rise_to(p: ArmatureParams, open_: bool, trip, i0, u0):
         tt = np.where(np.isfinite(t), t, 0.0)
         q, s = bus_model.integrals_from(tt, b, i0, u0)
         i_m, u = bus_model.state_from(tt, b, i0, u0)
-        extra = [u]
+        extra = [u] + ([bus_model.eddy_loss_from(tt, b, i0, u0)] if eddy_loss else [])
     else:
         target = trip
         if p.eddy is not None:   # the terminal current (V + R_e i_m)/(R + R_e): its i_m

@@ -239,8 +239,7 @@ def boost_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp: flo
     for wd, start, length, part in ((drive, 0.0, set_time, time < gap), (reset_drive, gap, reset_time, time >= gap)):
         lp = loop(wd, supply, coil_temp, r_factor, l_factor)
         if seating is not None and wd is drive:
-            t_p, i_p, on_p, top = seating
-            run_t, v_c = t_p[on_p == 1], (top + wd.supply.boost_resistance * i_p)[on_p == 1]
+            run_t, v_c = _seating_boost(wd, seating)
             dt = time - start
             after = boost_model.recharge_voltage(float(v_c[-1]), np.maximum(dt - length, 0.0),
                                                  wd.supply.boost_capacitance, wd.supply.boost_power, wd.supply.boost)
@@ -262,22 +261,34 @@ def boost_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp: flo
     return out[0] + out[1]
 
 
+def _seating_boost(wd: Drive, seating) -> tuple:
+    """``(t s, boost capacitor V)`` over a moving armature's set pulse (``seating``: its
+    ``(t, i, on, top of the coil)``, :func:`pulse`): the top plus ``R_b i`` while on."""
+    t_p, i_p, on_p, top = seating
+    return t_p[on_p == 1], (top + wd.supply.boost_resistance * i_p)[on_p == 1]
+
+
 def _main_bus_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float, r_factor: float,
-                     l_factor: float, time, set_time: float, reset_time: float, gap: float) -> np.ndarray:
+                     l_factor: float, time, set_time: float, reset_time: float, gap: float,
+                     seating=None) -> np.ndarray:
     """The drooping main bus (V) through both pulses from a full bus at ``supply`` V: after
     each pulse the boost converter draws ``boost_power / boost_efficiency`` from it while
     it puts the pulse's ``1/2 C (V_b^2 - v_end^2)`` back at ``boost_power`` (the
     ``boost_v`` column's recharge; each draw ends by the next pulse's start), the bus
-    resting in between (:func:`coildrive.model.converter_bus.trace`)."""
+    resting in between (:func:`coildrive.model.converter_bus.trace`). ``seating``: with a
+    moving armature the set pulse's (:func:`_boost_column`): ``v_end`` is its run's."""
     from . import converter_bus
 
     s = drive.supply
     starts, lengths = [], []
     for wd, start, length, nxt in ((drive, 0.0, set_time, gap), (reset_drive, gap, reset_time, np.inf)):
-        lp = loop(wd, supply, coil_temp, r_factor, l_factor)
-        b = boost_of(wd, float(lp.r_on), lp.inductance)
-        v_end = float(boost_model.of(b).state(length, b)[1])
-        draw = 0.5 * float(b.c) * (s.boost**2 - v_end**2) / s.boost_power if s.boost_power > 0 else 0.0
+        if seating is not None and wd is drive:
+            v_end = float(_seating_boost(wd, seating)[1][-1])
+        else:
+            lp = loop(wd, supply, coil_temp, r_factor, l_factor)
+            b = boost_of(wd, float(lp.r_on), lp.inductance)
+            v_end = float(boost_model.of(b).state(length, b)[1])
+        draw = 0.5 * s.boost_capacitance * (s.boost**2 - v_end**2) / s.boost_power if s.boost_power > 0 else 0.0
         starts.append(start + length)
         lengths.append(min(draw, nxt - start - length))
     return converter_bus.trace(time, starts, lengths, supply, s.source_resistance, s.capacitance,
@@ -310,8 +321,9 @@ def _seating(drive: Drive, lp, l_factor: float, t_pulse: float, points: int, sup
     i = tr.current if tr.magnetising_current is None else tr.magnetising_current
     if tr.bus is None:   # a stiff bus (an ideal boost: its voltage)
         return tr.time, i, tr.position, np.full(tr.time.shape, float(p.v_on[0]))
-    # from the boost: the top of the coil is the capacitor less the boost path's drop
-    return tr.time, i, tr.position, (tr.bus - s.boost_resistance * i if s.boosted else tr.bus)
+    # from the boost: the top of the coil is the capacitor less the boost path's drop (the
+    # terminal current's, with an eddy term)
+    return tr.time, i, tr.position, (tr.bus - s.boost_resistance * tr.current if s.boosted else tr.bus)
 
 
 def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float,
@@ -353,7 +365,7 @@ def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: 
                                        None if gap_s is None else (ts, is_, ons, buses))
     if drive.supply.boosted and drive.supply.droops and not full_bridge(drive):
         main = _main_bus_column(drive, reset_drive, supply, coil_temp, r_factor, l_factor, time, set_time,
-                                reset_time, gap)
+                                reset_time, gap, None if gap_s is None else (ts, is_, ons, buses))
         # each switch off, its node follows the top, which the main bus holds
         off_s = np.concatenate([1.0 - ons, np.ones(n_i + tr.size)])
         off_r = np.concatenate([np.ones(n_s + n_i), 1.0 - onr])
