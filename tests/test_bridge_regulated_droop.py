@@ -106,7 +106,14 @@ def test_release_and_buses_match_solve_ivp(tmp_path, hold, sink):
         tau = ell / r_on
         top = v_s / r_on * (1 - math.exp(-duty * period / tau)) / (1 - math.exp(-period / tau))
     v_peak, i_end = _peak(v_s, r_on, ell, r_s, cap, t_peak)
-    start = min(v_peak, v_s - r_s * max(i_end, top))
+    first = i_end
+    if hold == "closed_loop":
+        # its hold starts at the preload duty: the first on-time from the peak's end rises on
+        # past it, taken on the stiff bus (the RL step V/R + (i0 - V/R) e^{-t/tau})
+        t_on = d["timer"]["compare_ticks"] / d["timer"]["period_ticks"] / d["hold"]["frequency_hz"]
+        first = v_s / r_on + (i_end - v_s / r_on) * math.exp(-t_on * r_on / ell)
+        assert first > i_end
+    start = min(v_peak, v_s - r_s * max(i_end, first, top))
     t_drop, t_zero, _, _ = solve_fast_decay(top, start, v_s, r + rsense, ell, v_d, r_s, cap, sink,
                                             drive.release.current, 1e-11, 1e-13)
     assert rel["time_s"] == pytest.approx(t_drop, rel=1e-6)               # scipy solve_ivp (Radau)

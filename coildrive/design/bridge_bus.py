@@ -27,7 +27,7 @@ from ..model.flux import FluxCoil
 from ..model.supply import bus_floor
 from .figures import worst
 from .result import Check, ReleaseResult, SupplyResult
-from .supply import bus_at, converter_current, model_of
+from .supply import bus_at, converter_current, first_on_current, model_of
 from .turnoff import event_currents, release_loop
 
 #: Starting buses tried for a bridge's fast decay, evenly over the range the bus can be in
@@ -37,11 +37,19 @@ BRIDGE_STARTS = bus_decay.STARTS
 
 def _coil_top(res, peak_end) -> np.ndarray:
     """The coil's (with an eddy term: the magnetising) current's top (A) after the peak at
-    the points of ``res``: the larger of the end of the peak ``peak_end`` A (a boosted
-    peak's hand-over) and the hold's top."""
+    the points of ``res``: the largest of the end of the peak ``peak_end`` A (a boosted
+    peak's hand-over), the hold's first on-time from there at ``res.first_duty`` on a
+    stiff bus at ``V_s`` (:func:`coildrive.design.supply.first_on_current`: a peak that
+    ends below ``V_s/R`` rises on past its end; a closed loop's at its preload; a
+    current-mode hold, ``None``, stays off until the current falls into its band) and the
+    hold's top (every later on-time lies under the first one's or the orbit's, the
+    argument of :func:`coildrive.design.supply._first_on_top`)."""
     end = np.broadcast_to(np.asarray(peak_end, float), res.loop.v_on.shape)
-    return np.maximum(np.where(np.isfinite(end), end, 0.0),
-                      np.where(np.isfinite(res.hold.i_max), res.hold.i_max, 0.0))
+    end = np.where(np.isfinite(end), end, 0.0)
+    top = np.maximum(end, np.where(np.isfinite(res.hold.i_max), res.hold.i_max, 0.0))
+    if res.first_duty is None:
+        return top
+    return np.maximum(top, first_on_current(res.loop, end, res.first_duty, res.hold.period))
 
 
 def _top(drive: Drive, res, peak_end) -> np.ndarray:
@@ -78,8 +86,8 @@ def converter_draw(drive: Drive, res, peak_end) -> np.ndarray | None:
 def bus_range(drive: Drive, res, peak_time, peak_end) -> tuple[np.ndarray, np.ndarray]:
     """``(lowest, highest)`` V the bus can be at when a full bridge turns off, per point: at
     most the source ``V_s``; at least the lowest bus of the peak (``peak_time`` s) or, once
-    the coil draws no more than :func:`_top` (the larger of the end of the peak ``peak_end``
-    A and the hold's top), the floor :func:`~coildrive.model.supply.bus_floor` under it (the
+    the coil draws no more than :func:`_top` (the largest of the end of the peak ``peak_end``
+    A, the hold's first on-time from there and the hold's top), the floor :func:`~coildrive.model.supply.bus_floor` under it (the
     slow decay of the hold's off-times draws nothing from the bus); and never below ``-2
     V_d``. After a boosted peak the main bus carries nothing in the peak (its diode blocks:
     it sits at ``V_s`` until the hand-over) and from the hand-over on the floor takes the

@@ -22,6 +22,7 @@ from ..model.circuit import Loop, freewheel_element_energy, full_bridge, loop, t
 from ..model.pwm import PwmSteadyState, duty_for_mean, coil_heat, pwm_steady_state
 from ..model.rl import decay_current, decay_integrals, decay_time
 from ..model.thermal import settle_temperature
+from .supply import first_on_current
 from .supply import rise_current as bus_rise_current
 from .supply import rise_time as bus_rise_time
 
@@ -84,7 +85,11 @@ class PointResults:
     the top of the hold ripple); ``peak_switch_voltage`` is the switch voltage it causes.
     ``release_*`` are for a turn-off from the top of the hold ripple. ``loop`` is the
     hold's loop; ``release_loop`` the release's (another freewheel path with split decay,
-    else the same object).
+    else the same object). ``first_duty``: the duty (0..1, per point or one for all) of
+    the hold's first period after the peak -- a fixed-duty hold's own, a closed loop's
+    preload (it lowers the duty from there) -- whose on-time may lift the current past the
+    peak's end (:func:`coildrive.design.supply.first_on_current`); ``None`` for a hold
+    that waits for its band (current mode: off until the current falls into it).
     """
 
     supply: np.ndarray
@@ -104,6 +109,7 @@ class PointResults:
     peak_switch_voltage: np.ndarray
     armature: "ArmatureFigures | None" = None
     release_loop: Loop | None = None
+    first_duty: np.ndarray | float | None = None
 
 
 @dataclass(frozen=True)
@@ -143,7 +149,7 @@ class ArmatureFigures:
 
 def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak_time,
                       reuse: "ArmatureFigures | None" = None,
-                      lp_rel: Loop | None = None, duty=None) -> ArmatureFigures:
+                      lp_rel: Loop | None = None, duty=None, first_duty=None) -> ArmatureFigures:
     """The armature runs at the points: pull-in and hold on the hold's loop ``lp``, the
     release on ``lp_rel`` (the fast path of split decay; ``None`` or ``lp``: the same
     path), with a late bypass decaying through ``lp`` first (:func:`late_release`).
@@ -155,7 +161,9 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
     bridge the release returns into the bus, the capacitor a state of its run too
     (:func:`_release_on_bus`; a linear coil or its curves, an eddy term too). A boosted peak
     (``supply.boost``): the pull-in is the boost's, then the hold's at ``duty``
-    (:mod:`coildrive.design.boost_armature`), whatever ``peak_time``."""
+    (:mod:`coildrive.design.boost_armature`), whatever ``peak_time``. ``first_duty``: the
+    hold's first period's duty (:attr:`PointResults.first_duty`), for the top current a
+    bridge's release on the drooping bus starts under."""
     import dataclasses
 
     from ..model.armature import hold_force_current, params_from_loop
@@ -203,10 +211,12 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
     if s.droops and full_bridge(drive):
         # the fast decay returns the current into the drooping bus while the armature lets
         # go: the capacitor a state of the release run, from the range of starting buses
+        end = np.reshape(np.where(np.isfinite(pin.peak_end_current), pin.peak_end_current, 0.0), shape)
+        first = None if first_duty is None else np.ravel(first_on_current(lp, end, first_duty, ss.period))
         on_bus = _release_on_bus(drive, flat_rel if lp_rel is not None and lp_rel is not lp else flat,
                                  l_factor, shape, pin, np.ravel(ss.i_max),
                                  None if lp.mixed is None else (lp.mixed.fraction, np.ravel(
-                                     np.broadcast_to(ss.period, shape))))
+                                     np.broadcast_to(ss.period, shape))), first)
         rel = on_bus.run
     if rel is None:
         rel = (late_release(p, p_rel, np.ravel(ss.i_max), lag) if lag > 0 else
@@ -221,13 +231,14 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
                            release_from=np.ravel(ss.i_max).copy(), boost=boosted, bus_release=on_bus)
 
 
-def _release_on_bus(drive: Drive, flat_rel: Loop, l_factor, shape, pin, i_max, mixed=None):
+def _release_on_bus(drive: Drive, flat_rel: Loop, l_factor, shape, pin, i_max, mixed=None, first=None):
     """A moving armature's release on a full bridge on the drooping bus (a linear coil or
     its curves, an eddy term too; ``supply.sink`` either way): :func:`coildrive.model.armature_bus_release.release_over` from
     :data:`coildrive.model.bus_decay.STARTS` starting buses between the lowest
     the bus can be at the turn-off and the source ``V_s``: the pull-in's lowest bus or,
-    once the coil draws no more than the larger of the end of the peak and the hold's top
-    ``i_max`` A (with an eddy term the terminal current they bound),
+    once the coil draws no more than the largest of the end of the peak, the hold's first
+    on-time from there (``first`` A per point, ``None``: a hold that waits for its band) and
+    the hold's top ``i_max`` A (with an eddy term the terminal current they bound),
     :func:`~coildrive.model.supply.bus_floor` under it (as
     :func:`coildrive.design.bridge_bus.bus_range`), never below ``-2 V_d``; ``i_max`` and
     the release's currents are magnetising currents with an eddy term. ``mixed``: a
@@ -255,7 +266,8 @@ def _release_on_bus(drive: Drive, flat_rel: Loop, l_factor, shape, pin, i_max, m
     v_s = p_bus.v_on
     v_d2 = flat_rel.v_off - flat_rel.v_on     # the two body diodes (V_s + 2 V_d into the bus)
     end = np.where(np.isfinite(pin.peak_end_current), pin.peak_end_current, 0.0)
-    top_m = top = np.maximum(end, np.where(np.isfinite(i_max), i_max, 0.0))
+    top_m = top = np.maximum(end if first is None else np.maximum(end, first),
+                             np.where(np.isfinite(i_max), i_max, 0.0))
     if p_bus.eddy is not None:   # the bus feeds the terminal current: at most (V_s + R_e i_m)/(R + R_e)
         from ..model.eddy import terminal
         top = terminal(top, v_s, p_bus.r_on, p_bus.eddy)
@@ -278,7 +290,7 @@ def _release_on_bus(drive: Drive, flat_rel: Loop, l_factor, shape, pin, i_max, m
 def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
              peak_time, mechanics: bool = True,
              reuse: "PointResults | None" = None, coil_temp=None,
-             factors: dict | None = None) -> PointResults:
+             factors: dict | None = None, first_duty=None) -> PointResults:
     """All figures for a setting at the points (see :class:`PointResults`).
 
     Parameters
@@ -292,6 +304,8 @@ def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
     coil_temp : degC at each point (the envelope's coil-temperature axis); ``None``: the
         temperature a long hold at the point settles at
     factors : the loop's other tolerance factors (diode, fast element, sense resistor)
+    first_duty : the duty of the hold's first period (``None``: ``duty``; a closed loop's
+        preload), :attr:`PointResults.first_duty`
     duty and peak_time may be arrays over the points (a supply table, a compensated peak).
 
     With an ``[armature]`` the pull-in time is the time until the armature rests on the
@@ -304,6 +318,7 @@ def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
     supply, ambient, r_factor, l_factor = np.broadcast_arrays(
         *(np.asarray(x, float) for x in (supply, ambient, r_factor, l_factor)))
     factors = factors or {}
+    first_duty = duty if first_duty is None else first_duty
     if coil_temp is None:
         temp = hold_temperature(drive, supply, ambient, r_factor, l_factor, duty, frequency, factors)
     else:
@@ -323,17 +338,18 @@ def evaluate(drive: Drive, supply, ambient, r_factor, l_factor, duty, frequency,
     if drive.armature is not None and mechanics:
         arm, t_pull, i_peak, t_drop, t_zero, energy, i_fast = moving_armature(
             drive, lp, lp_rel, l_factor, ss, peak_time, None if reuse is None else reuse.armature,
-            np.shape(supply), i_fast, duty)
+            np.shape(supply), i_fast, duty, first_duty)
     interrupt, v_sw = switch_voltage_peak(drive, lp, lp_rel, i_peak, ss.i_max, i_fast)
     return PointResults(supply=supply, ambient=ambient, coil_temp=temp, r_factor=r_factor,
                         l_factor=l_factor, loop=lp, pull_in_time=t_pull, peak_end_current=i_peak,
                         hold=ss, coil_power=power, release_time=t_drop, release_zero_time=t_zero,
                         release_energy=energy, interrupt_current=interrupt,
-                        peak_switch_voltage=v_sw, armature=arm, release_loop=lp_rel)
+                        peak_switch_voltage=v_sw, armature=arm, release_loop=lp_rel,
+                        first_duty=first_duty)
 
 
 def moving_armature(drive: Drive, lp: Loop, lp_rel: Loop, l_factor, ss: PwmSteadyState, peak_time,
-                    reuse: "ArmatureFigures | None", shape: tuple, i_fast, duty=None):
+                    reuse: "ArmatureFigures | None", shape: tuple, i_fast, duty=None, first_duty=None):
     """The figures an ``[armature]`` decides at the points (arrays of ``shape``), for any
     hold whose steady state ``ss`` is a two-segment cycle on the seated coil (the PWM
     hold, a current-mode hold's switching cycle): ``(ArmatureFigures, pull-in time s
@@ -341,8 +357,9 @@ def moving_armature(drive: Drive, lp: Loop, lp_rel: Loop, l_factor, ss: PwmStead
     time to zero current s, freewheel energy J, current when the release path takes over
     A: ``i_fast``, the still coil's, unless a late bypass's run says)``. The release starts
     from the top of the ripple ``ss.i_max``; ``duty``: the PWM hold's, for a boosted peak's
-    hold carrying the armature on (:func:`_armature_figures`)."""
-    arm = _armature_figures(drive, lp, l_factor, ss, peak_time, reuse, lp_rel, duty)
+    hold carrying the armature on (:func:`_armature_figures`); ``first_duty``: the hold's
+    first period's (:attr:`PointResults.first_duty`, ``None``: current mode)."""
+    arm = _armature_figures(drive, lp, l_factor, ss, peak_time, reuse, lp_rel, duty, first_duty)
     t_pull = arm.pull_in.seat_time.reshape(shape)
     i_inf = lp.v_on / lp.r_on
     i_peak = arm.pull_in.peak_end_current.reshape(shape)

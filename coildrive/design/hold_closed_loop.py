@@ -199,8 +199,9 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     short, long_ = pk.short_time, pk.long_time
     res_low = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor, run_low, f,
                        short, reuse=first, **at)
+    # (its hold starts from the preload: the first on-time after the peak at that duty)
     res = evaluate(drive, env.supply, env.ambient, env.r_factor, env.l_factor, run_high, f,
-                   long_, **at)
+                   long_, first_duty=preload / period, **at)
     res = boosted_points(drive, res)   # a boosted peak's highest end current and turn-off
     loss = _losses(drive, res, f)
     corners = corners_of(env, res_low, loss, high=res, duty=run_high, drive=drive)

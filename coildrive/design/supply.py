@@ -177,6 +177,17 @@ def _pwm_hold(drive: Drive) -> bool:
     return drive.hold.mode == "voltage" and drive.hold.regulation != "closed_loop"
 
 
+def first_on_current(lp, i_m, duty, period) -> np.ndarray:
+    """The most (with an eddy term: magnetising) current (A) in a hold's first on-time of
+    ``duty`` x ``period`` s from ``i_m`` A on a stiff bus at the loop's ``V_s``, per point:
+    the larger of ``i_m`` and the on-time's end (:func:`coildrive.model.rl.rise_current`:
+    a linear coil, a curve, an eddy term's branch). An unknown (NaN) duty is taken as all
+    on: the bound stays a bound. Why it bounds the hold's later on-times on a bus at or
+    below ``V_s``: :func:`_first_on_top`."""
+    t_on = np.clip(np.nan_to_num(np.asarray(duty, float), nan=1.0), 0.0, 1.0) * np.asarray(period, float)
+    return np.maximum(rl.rise_current(t_on, i_m, lp.v_on, lp.r_on, lp.inductance), i_m)
+
+
 def _first_on_top(drive: Drive, lp, i_m, duty, period) -> np.ndarray:
     """The most current (A) the main bus gives the coil in a fixed-duty hold's first
     on-time from the magnetising current ``i_m`` A at the hand-over, taken on a stiff bus
@@ -192,9 +203,7 @@ def _first_on_top(drive: Drive, lp, i_m, duty, period) -> np.ndarray:
     its start) lies below the first one's or the orbit's (:func:`handover_bus` takes the
     hold's top too)."""
     ind = lp.inductance
-    t_on = np.clip(np.nan_to_num(np.asarray(duty, float), nan=1.0), 0.0, 1.0) * np.asarray(period, float)
-    end = rl.rise_current(t_on, i_m, lp.v_on, lp.r_on, ind)
-    top = np.maximum(end, i_m)
+    top = first_on_current(lp, i_m, duty, period)
     if isinstance(ind, EddyCoil):     # (a clamp's off-times draw at most the magnetising current)
         return np.maximum(eddy_terminal(top, lp.v_on, lp.r_on, ind.resistance), top)
     return top
