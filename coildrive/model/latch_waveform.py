@@ -178,9 +178,10 @@ def fast_decay_after(drive: Drive, rel, i0: float, v0: float, i_drop: float = 0.
     at the pulse's end (:func:`coildrive.model.flux_bus_decay.fast_decays`: a linear coil,
     a flux-linkage curve or an eddy term, whose ``i0`` and ``i_drop`` are magnetising
     currents): its :class:`~coildrive.model.bus_decay.FastDecay` (``drop_time`` to
-    ``i_drop`` A), or ``None`` off a bridge or on a stiff bus. ``rel``: the fast decay's
-    loop at one point."""
-    if not (drive.supply.droops and full_bridge(drive)):
+    ``i_drop`` A), or ``None`` off a bridge, on a stiff bus or from the boost (whose decay
+    returns into the boost capacitor, not the main bus). ``rel``: the fast decay's loop at
+    one point."""
+    if not (drive.supply.droops and full_bridge(drive)) or drive.supply.boosted:
         return None
     coil, i0, v0, v_s, r_s, c, r, v_d = _fast_args(drive, rel, i0, v0)
     return fast_decays(coil, i0, [v0], i_drop, v_s, r_s, c, r, v_d, drive.supply.sink)[0]
