@@ -14,9 +14,10 @@ References:
 
 * scipy's ``solve_ivp`` (Radau; tests/test_latch_boost_droop.py's) on the main bus written
   afresh -- ``C dv/dt = (V_s - v)/R_s - P/v`` while the converter draws its constant
-  power, ``(V_s - v)/R_s`` otherwise -- from a full bus: the example's runs may touch (the floor, where a continuous draw settles);
-  runs that cannot, every ``interval - longest pulse`` (the orbit, to 1e-6) and at random
-  offsets within each pulse, 100 pulses: its lowest bus never below the design's;
+  power, ``(V_s - v)/R_s`` otherwise -- from a full bus: the example's runs may touch (the
+  floor, where a continuous draw settles); runs that cannot, every ``interval - longest
+  pulse`` (the orbit, to 1e-6) and at random offsets within each pulse, 100 pulses: its
+  lowest bus never below the design's; simulate's ``main_bus_v`` column within 1e-6;
 * hand-worked: the floor, the larger root of ``v^2 - V_s v + R_s P = 0`` (9 V, 0.5 ohm,
   2.5 W: ``v_f = (9 + sqrt(76)) / 2 = 8.85890 V``, the converter's current there ``P / v_f
   = 0.282202 A``); the net energy's draw (drawn less returned, / 2 W); a source that
@@ -35,6 +36,7 @@ import pytest
 from typer.testing import CliRunner
 
 from conftest import EXAMPLES
+from test_latch_boost import header_holds
 from test_latch_boost_droop import _bus_ivp, _lowest_ivp
 from coildrive.cli import app
 from coildrive.config import load_drive
@@ -111,9 +113,11 @@ def test_lowest_main_bus_by_hand_and_against_solve_ivp(droop):
 
 
 def test_design_table_json_simulate_and_check_end_to_end(tmp_path, droop):
-    """As a user runs it: design (table, --json, --header) names the lowest main bus and
+    """As a user runs it: design (table, --json, --header: compiled by gcc -Wall -Wextra
+    -Werror -pedantic) names the lowest main bus and
     passes; the pulses are the stiff main supply's to the bit (the main bus carries none
-    of them), and so is simulate's CSV; check passes a capture of the model's device
+    of them), and so is simulate's CSV but for its last column, the main bus (against
+    solve_ivp), which the rail follows between the pulses; check passes a capture of the model's device
     (plumbing: it shares the design's physics)."""
     from test_emulator_device import capture_of, run as run_device
     from coildrive.bench.device import DeviceOptions
@@ -135,6 +139,8 @@ def test_design_table_json_simulate_and_check_end_to_end(tmp_path, droop):
         assert (a.ticks, a.supply_j, a.returned_j, a.decay_time_s, a.peak_switch_voltage_v, a.worst_corner) == \
             (b.ticks, b.supply_j, b.returned_j, b.decay_time_s, b.peak_switch_voltage_v, b.worst_corner)
     assert d.latch.interval_s == stiff.latch.interval_s and d.latch.recharge_interval_s == 0.0
+    ticks = doc["latch"]["interval_ticks"]
+    header_holds(tmp_path, "h.h", f"COIL_LATCH_BOOSTED == 1U && COIL_MIN_INTERVAL_TICKS == {ticks}U")
     table = runner.invoke(app, ["design", str(path)], terminal_width=200)
     assert table.exit_code == 0 and "lowest main bus" in table.stdout, table.output
     csvs = []
@@ -142,7 +148,30 @@ def test_design_table_json_simulate_and_check_end_to_end(tmp_path, droop):
         csvs.append(tmp_path / f"{name}.csv")
         res = runner.invoke(app, ["simulate", str(p), "--supply", "9", "--coil-temp", "25", "--csv", str(csvs[-1])])
         assert res.exit_code == 0, res.output
-    assert csvs[0].read_text() == csvs[1].read_text()
+    w, w0 = (np.genfromtxt(c, delimiter=",", names=True) for c in csvs)
+    assert w.dtype.names == w0.dtype.names + ("main_bus_v",)
+    idle = np.arange(w.size) == int(np.argmax(np.diff(w["time_s"]))) + 1   # the one sample between the pulses
+    for name in w0.dtype.names:   # the pulses are the stiff main supply's; between them the rail is the bus
+        same = ~idle if name in ("q1_v", "q3_v") else np.ones(w.size, bool)
+        assert np.array_equal(w[name][same], w0[name][same]), name
+    assert np.array_equal(w["q1_v"][idle], w["main_bus_v"][idle]) and w["current_a"][idle] == 0.0
+    # the main_bus_v column against scipy solve_ivp (Radau) of the main bus written afresh: the
+    # converter draws 2.5 W from each pulse's end until the boost_v column's v^2 = v_r^2 + 2 P
+    # (t - t_end) / C_b (the return's capacitor v_r, from its zero on) reaches 40 V
+    t, i = w["time_s"], w["current_a"]
+    phases, now = [], 0.0
+    for part in (t < w["time_s"][idle][0], t > w["time_s"][idle][0]):
+        k_end = int(np.argmax(np.where(part, np.abs(i), -1.0)))            # the pulse's end: its peak
+        k_zero = k_end + int(np.argmax(i[k_end:] == 0.0))                  # the return's zero
+        draw = (t[k_zero] - t[k_end]) + 0.5 * 220e-6 * (40.0**2 - w["boost_v"][k_zero] ** 2) / 2.0
+        phases += [(t[k_end] - now, False), (draw, True)]
+        now = t[k_end] + draw
+    phases.append((max(t[-1] - now, 0.0) + 1e-9, False))   # (the reset's draw outlasts the CSV)
+    _, sols = _bus_ivp(9.0, 0.5, 0.01, 2.5, phases)
+    edges = np.cumsum([0.0] + [x for x, _ in phases])
+    ref = np.concatenate([sol.sol(t[(t >= a) & (t < b)] - a)[0] for sol, a, b in zip(sols, edges, edges[1:])
+                          if np.any((t >= a) & (t < b))])
+    assert w["main_bus_v"] == pytest.approx(ref, rel=1e-6) and w["main_bus_v"].min() < 8.98   # (measured 1.1e-7)
     dev = LatchDevice(d, DeviceOptions(noise_codes=0.5, seed=5, supply=9.0, coil_temp=100.0))
     msgs, _ = run_device(dev, 0.05 + 2.2 * dev.period, step=0.05)
     rep = check_latch_capture(capture_of(msgs, tmp_path / "good.cdcap"), d, coil_temp=100.0)

@@ -33,8 +33,9 @@ the boost capacitor (:func:`coildrive.model.bridge.boost_return`): the rail is t
 capacitor + ``V_d + R_b i`` then. A ``boost_v`` column is the capacitor through both
 pulses, recharged at ``boost_power`` after each. On a drooping main supply a
 ``main_bus_v`` column is the main bus (:mod:`coildrive.model.converter_bus`: the
-converter draws ``boost_power / boost_efficiency`` from it while it recharges), which
-each switch's node follows while it is off.
+converter draws ``boost_power / boost_efficiency`` from it while it recharges; on a
+bridge the net of the return), which each switch's node follows while it is off (on a
+bridge the rail between the pulses).
 
 Units: s, A, V.
 """
@@ -269,7 +270,10 @@ def _main_bus_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp:
     each pulse the boost converter draws ``boost_power / boost_efficiency`` from it while
     it puts the pulse's ``1/2 C (V_b^2 - v_end^2)`` back at ``boost_power`` (the
     ``boost_v`` column's recharge; each draw ends by the next pulse's start), the bus
-    resting in between (:func:`coildrive.model.converter_bus.trace`)."""
+    resting in between (:func:`coildrive.model.converter_bus.trace`). On a full bridge
+    ``v_end`` is the capacitor after the fast decay's return
+    (:func:`coildrive.model.bridge.boost_return`): the converter puts back the net, as the
+    ``boost_v`` column's recharge reaches ``V_b`` once the return is over."""
     from . import converter_bus
 
     s = drive.supply
@@ -277,7 +281,11 @@ def _main_bus_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp:
     for wd, start, length, nxt in ((drive, 0.0, set_time, gap), (reset_drive, gap, reset_time, np.inf)):
         lp = loop(wd, supply, coil_temp, r_factor, l_factor)
         b = boost_of(wd, float(lp.r_on), lp.inductance)
-        v_end = float(boost_model.of(b).state(length, b)[1])
+        i_end, v_end = (float(x) for x in boost_model.of(b).state(length, b))
+        if full_bridge(wd):   # the decay's return into the capacitor first
+            rel = loop(wd, supply, coil_temp, r_factor, l_factor, path="release")
+            ret = boost_return(i_end, v_end, *return_args(wd, rel))
+            v_end = float(boost_return_trace(ret.zero_time, i_end, v_end, *return_args(wd, rel))[1])
         draw = 0.5 * float(b.c) * (s.boost**2 - v_end**2) / s.boost_power if s.boost_power > 0 else 0.0
         starts.append(start + length)
         lengths.append(min(draw, nxt - start - length))
@@ -352,14 +360,18 @@ def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: 
         cols["boost_v"] = boost_column(drive, reset_drive, supply, coil_temp, r_factor, l_factor, time,
                                        set_time, reset_time, gap,
                                        None if gap_s is None else (ts, is_, ons, buses))
-    if drive.supply.boosted and drive.supply.droops and not full_bridge(drive):
+    if drive.supply.boosted and drive.supply.droops:
         main = _main_bus_column(drive, reset_drive, supply, coil_temp, r_factor, l_factor, time, set_time,
                                 reset_time, gap)
-        # each switch off, its node follows the top, which the main bus holds
-        off_s = np.concatenate([1.0 - ons, np.ones(n_i + tr.size)])
-        off_r = np.concatenate([np.ones(n_s + n_i), 1.0 - onr])
-        cols["switch_voltage_v"] = cols["switch_voltage_v"] + off_s * (main - supply)
-        cols["reset_switch_voltage_v"] = cols["reset_switch_voltage_v"] + off_r * (main - supply)
+        if full_bridge(drive):   # between the pulses, all five off: the rail (Q1's, Q3's drain) on the main bus
+            idle = np.concatenate([np.zeros(n_s), np.ones(n_i), np.zeros(tr.size)])
+            cols["q1_v"] = cols["q1_v"] + idle * (main - supply)
+            cols["q3_v"] = cols["q3_v"] + idle * (main - supply)
+        else:   # each switch off, its node follows the top, which the main bus holds
+            off_s = np.concatenate([1.0 - ons, np.ones(n_i + tr.size)])
+            off_r = np.concatenate([np.ones(n_s + n_i), 1.0 - onr])
+            cols["switch_voltage_v"] = cols["switch_voltage_v"] + off_s * (main - supply)
+            cols["reset_switch_voltage_v"] = cols["reset_switch_voltage_v"] + off_r * (main - supply)
         cols["main_bus_v"] = main
     gap_all = (None if gap_s is None else
                np.concatenate([gap_s, np.zeros(n_i), np.full(tr.size, np.nan)]))
