@@ -35,7 +35,7 @@ import numpy as np
 import pytest
 from typer.testing import CliRunner
 
-from conftest import EXAMPLES
+from conftest import EXAMPLES, require_tool
 from test_latch_boost import header_holds
 from test_latch_boost_droop import _bus_ivp, _lowest_ivp
 from coildrive.cli import app
@@ -188,3 +188,25 @@ def test_a_source_that_cannot_carry_the_converter_fails(tmp_path):
     assert doc["latch"]["main_bus"]["lowest_bus_v"] is None
     bad = [c for c in doc["checks"] if not c["ok"]]
     assert [c["name"] for c in bad] == ["boost_main_bus"] and "at most 2.025 W" in bad[0]["detail"], bad
+
+
+def test_the_compiled_driver_in_the_loop_passes_check(tmp_path, droop):
+    """firmware-driver's reference latch driver, compiled by gcc (codegen/host_build.py) and run in
+    the virtual device (the model's coil: plumbing), passes check on the drooping main
+    supply: the pulses run from the boost, as on a stiff one."""
+    from test_emulator_device import capture_of, run as run_device
+    from coildrive.bench.device import DeviceOptions
+    from coildrive.bench.latch_check import check_latch_capture
+    from coildrive.bench.latch_firmware_device import LatchFirmwareDevice
+    from coildrive.codegen.host_build import build_latch_firmware
+    from coildrive.codegen.latch_driver import pulse_switches
+
+    require_tool("gcc")
+    path, _, d = droop
+    r = CliRunner().invoke(app, ["firmware-driver", str(path), "--out", str(tmp_path / "fw")])
+    assert r.exit_code == 0, r.output
+    dev = LatchFirmwareDevice(d, build_latch_firmware(tmp_path / "fw", d), pulse_switches(d),
+                              DeviceOptions(noise_codes=0.5, seed=5, supply=9.0, coil_temp=100.0))
+    msgs, _ = run_device(dev, 0.05 + dev.interval + 2.2 * dev.period, step=0.05)
+    rep = check_latch_capture(capture_of(msgs, tmp_path / "fw.cdcap"), d, coil_temp=100.0)
+    assert rep.ok and not dev.faults, [(i.name, i.status, i.detail) for i in rep.items]
