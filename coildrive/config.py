@@ -1444,8 +1444,8 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
     peak's runs of :mod:`coildrive.model.flux_boost`), a reset winding on a second low- or
     high-side switch, or a linear coil on a full bridge whose high-side rail the boost
     switch feeds (both polarities; a boost capacitor, which takes each fast decay back
-    through the boost switch's body diode, on a stiff main supply), a stiff or a drooping
-    main supply (the boost converter's draw on it:
+    through the boost switch's body diode), a stiff or a drooping main supply (either way
+    the pulses draw nothing from it, the boost converter's recharges do:
     :func:`coildrive.design.latch_boost.main_bus`) and no settle time after the reset pulse;
     with an ``[armature]`` a linear coil and its reset winding on a stiff or a drooping main
     supply (the set pulse's seat run from the boost capacitor: the design refuses in one
@@ -1456,9 +1456,6 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
     if switch.topology == "full_bridge" and not supply.boost_capacitance > 0:
         return "supply.boost_capacitance", ("a latching coil on a full bridge from an ideal boost (each fast "
                                             "decay returns into the boost capacitor: give its capacitance)")
-    if switch.topology == "full_bridge" and supply.droops:
-        return "supply.source_resistance", ("a latching coil on a full bridge from the boost on a drooping main "
-                                            "supply (a stiff main supply only)")
     if switch.topology == "full_bridge" and (coil.flux_current or coil.eddy_resistance):
         return (("coil.flux_current" if coil.flux_current else "coil.eddy_resistance"),
                 "a latching coil on a full bridge from the boost with a flux-linkage curve or an eddy-current "
@@ -1569,7 +1566,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "slow-decay hold), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; a "
                          "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, or a "
-                         "linear coil on a full bridge with a boost capacitor on a stiff main supply; a stiff or a "
+                         "linear coil on a full bridge with a boost capacitor; a stiff or a "
                          "drooping main supply (a clamp on a stiff one), no reset settle_time; with [armature] a "
                          "linear coil (an eddy term on the set winding from a boost capacitor too), seated by the "
                          "set pulse's threshold")

@@ -179,7 +179,7 @@ def predict_pulse(design, name: str, supply: float, coil_temp: float, zero_curre
         fall = (r_off * level + v_off) / l_level
         i_sensed = i_end
     t_zero = float(np.ravel(decay_time(level, i_end, r_off, v_off, ind))[0])
-    if wd.supply.droops and full_bridge(wd):   # the fast decay into the drooping bus, from the pulse's end bus
+    if wd.supply.droops and full_bridge(wd) and not wd.supply.boosted:   # the fast decay into the drooping bus
         from ..model.latch_waveform import fast_decay_after, pulse
         _, _, on, bus, *_ = pulse(wd, supply, coil_temp, 1.0, 1.0, length, 2)
         fast = fast_decay_after(wd, rel, i_end, float(bus[on == 1][-1]), level)

@@ -41,9 +41,12 @@ path's own resistance, ``boost_j``). The boost's recharge of the larger pulse's 
 
 On a drooping main supply (``supply.source_resistance`` with ``capacitance``) the pulses
 still run from the boost alone (the main supply's diode blocks: ``*_boost_droop``) and
-each winding's freewheel path returns nothing to the main bus; what loads it is the boost
-converter, drawing ``boost_power / boost_efficiency`` while it recharges after each pulse
-(:class:`MainBus`, :func:`main_bus`, physics :mod:`coildrive.model.converter_bus`).
+each winding's freewheel path -- on a full bridge the fast decay, into the boost capacitor
+-- returns nothing to the main bus; what loads it is the boost converter, drawing
+``boost_power / boost_efficiency`` in one run a pulse while it recharges (on a bridge only
+the energy net of what the decay returned), the runs at least the interval less the
+longest pulse apart (:class:`MainBus`, :func:`main_bus`, physics
+:mod:`coildrive.model.converter_bus`).
 
 A flux-linkage curve (the set winding's) or an eddy-current term (either winding's) takes
 each pulse on the monostable boosted peak's runs (:mod:`coildrive.model.flux_boost`,
@@ -457,17 +460,25 @@ def sample_figures(wd: Drive, lp, rel, sense_factor, b: BoostResult, current: fl
 class MainBus:
     """The drooping main bus behind the pulses from the boost (``design --json``
     ``latch.main_bus``; ``None`` on a stiff main supply). The boost converter draws
-    ``converter_draw_w`` W (``boost_power / boost_efficiency``) from it for ``draw_time_s``
-    s after every pulse (the larger pulse's energy from the boost at ``boost_power``), the
-    pulses coming every ``period_s`` s (the shortest interval: the fastest the firmware
-    may fire them); the pulses run from the boost and the freewheel paths return nothing
-    to it. ``lowest_bus_v``: the lowest bus, the periodic orbit's at the end of a draw
-    (from a full bus it only falls to it), at ``lowest_bus_corner`` (the source there,
+    ``converter_draw_w`` W (``boost_power / boost_efficiency``) from it in one run of
+    ``draw_time_s`` s a pulse (the larger pulse's energy net from the boost at
+    ``boost_power``: what it drew, less on a full bridge what its fast decay returned into
+    the boost capacitor), the pulses coming at most every ``period_s`` s (the shortest
+    interval: the fastest the firmware may fire them). A run starts anywhere from its
+    pulse's start (a converter that recharges as the capacitor falls) to its end (one held
+    off during the pulse), and no pulse runs past its time-out (``longest_pulse_s``, the
+    longer pulse's), so the runs are at least ``spacing_s`` = ``period_s -
+    longest_pulse_s`` apart (start to start). The pulses run from the boost and their
+    freewheel paths (a bridge's fast decay: into the boost capacitor) return nothing to the
+    main bus. ``lowest_bus_v``: the lowest bus, the periodic orbit's of runs every
+    ``spacing_s`` at the end of a run (from a full bus it only falls to it; a bound under
+    every schedule the firmware may run; runs that may touch, ``spacing_s <=
+    draw_time_s``: the floor itself), at ``lowest_bus_corner`` (the source there,
     ``source_v``), ``droop_v`` below that source; ``floor_v`` the bus a steady draw settles
-    at there (V_1 of :mod:`coildrive.model.converter_bus`). ``None`` where the source
-    behind ``R_s`` cannot carry the draw at all: it delivers at most ``source_limit_w`` =
-    ``V_s^2 / (4 R_s)`` at the lowest source. Units V, ohm, F, W, s (``period_s`` null in
-    the JSON where no interval is safe: then one draw from a full bus)."""
+    at there (V_1 of :mod:`coildrive.model.converter_bus`). ``None`` where the source behind
+    ``R_s`` cannot carry the draw at all: it delivers at most ``source_limit_w`` = ``V_s^2 /
+    (4 R_s)`` at the lowest source. Units V, ohm, F, W, s (``period_s`` and ``spacing_s``
+    null in the JSON where no interval is safe: then one run from a full bus)."""
 
     source_resistance_ohm: float
     capacitance_f: float
@@ -480,22 +491,28 @@ class MainBus:
     droop_v: float | None
     floor_v: float | None
     source_limit_w: float
+    longest_pulse_s: float = 0.0
+    spacing_s: float = math.inf
 
 
 def main_bus(drive: Drive, pulses: list, interval: float) -> tuple[MainBus | None, list[Check]]:
     """The drooping main bus under the boost converter's recharges (:class:`MainBus`) at both
-    ends of the source (``supply.min``, ``supply.max``), pulses every ``interval`` s, and
-    its check ``boost_main_bus`` (the source carries the converter's draw); ``(None, [])``
-    on a stiff main supply."""
+    ends of the source (``supply.min``, ``supply.max``), pulses at least ``interval`` s apart
+    (their runs ``interval`` less the longest pulse), and its check ``boost_main_bus`` (the
+    source carries the converter's draw); ``(None, [])`` on a stiff main supply. One
+    function for both topologies: a reset winding's pulses and a full bridge's (whose
+    recharge is of the net energy, :func:`bridge_figures`)."""
     s = drive.supply
     if not (s.boosted and s.droops):
         return None, []
     p_in = s.converter_draw
-    energy = max((p.boost.energy_j for p in pulses if p.boost is not None), default=0.0)
-    t_draw = energy / s.boost_power if s.boost_power > 0 else 0.0
+    boosted = [p for p in pulses if p.boost is not None]
+    t_draw = max((p.boost.recharge_time_s or 0.0 for p in boosted), default=0.0)
+    longest = max((p.time_s for p in boosted), default=0.0)
+    period = interval   # (inf where no interval is safe: one run from a full bus)
+    spacing = max(period - longest, t_draw)   # (runs that may touch: one long run, the floor)
     v_s = np.array([s.min, s.max])
-    period = interval   # (inf where no interval is safe: one draw from a full bus)
-    low = converter_bus.orbit_low(v_s, s.source_resistance, s.capacitance, p_in, t_draw, max(period, t_draw))
+    low = converter_bus.orbit_low(v_s, s.source_resistance, s.capacitance, p_in, t_draw, spacing)
     floor = converter_bus.roots(v_s, s.source_resistance, p_in)[0]
     carried = bool(np.all(np.isfinite(low)))
     k = int(np.argmin(low)) if carried else 0
@@ -505,20 +522,23 @@ def main_bus(drive: Drive, pulses: list, interval: float) -> tuple[MainBus | Non
         draw_time_s=t_draw, period_s=period, source_v=float(v_s[k]),
         lowest_bus_v=float(low[k]) if carried else None, lowest_bus_corner=f"source {v_s[k]:.4g} V",
         droop_v=float(v_s[k] - low[k]) if carried else None, floor_v=float(floor[k]) if carried else None,
-        source_limit_w=limit)
+        source_limit_w=limit, longest_pulse_s=longest, spacing_s=spacing)
     if not carried:
         return bus, [Check("boost_main_bus", False,
                            f"the source at {s.min:.4g} V behind {s.source_resistance:.4g} ohm delivers at most "
                            f"{limit:.4g} W, less than the boost converter's {p_in:.4g} W: the main bus collapses "
                            "while the boost recharges -- a lower supply.source_resistance or a smaller "
                            "supply.boost_power")]
-    every = f"every {period * 1e3:.4g} ms" if math.isfinite(period) else "once"
+    every = (f"pulses every {period * 1e3:.4g} ms, its runs at least {spacing * 1e3:.4g} ms apart"
+             if math.isfinite(period) else "once")
+    back = ("; each pulse's fast decay returns into the boost capacitor, so it recharges the net"
+            if full_bridge(drive) else "")
     return bus, [Check("boost_main_bus", True,
-                       f"the boost converter draws {p_in:.4g} W from the main bus for {t_draw * 1e3:.4g} ms after "
-                       f"each pulse (pulses {every}): the bus falls {bus.droop_v:.4g} V to "
+                       f"the boost converter draws {p_in:.4g} W from the main bus for {t_draw * 1e3:.4g} ms a "
+                       f"pulse ({every}): the bus falls {bus.droop_v:.4g} V to "
                        f"{bus.lowest_bus_v:.4g} V at its {bus.lowest_bus_corner} (a steady draw settles at "
                        f"{bus.floor_v:.4g} V); the pulses run from the boost and their freewheel paths return "
-                       "nothing to it")]
+                       f"nothing to it{back}")]
 
 
 def _sample_armature(wd: Drive, lp, rel, l_factor, b: BoostResult, trip, v_factor, c_factor) -> tuple:

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import math
+
 from rich.console import Console
 from rich.markup import escape
 from rich.table import Table
@@ -86,9 +88,12 @@ def latch_table(d: LatchDesign) -> Table:
         m = r.main_bus
         t.add_row("lowest main bus", "none" if m.lowest_bus_v is None else f"{m.lowest_bus_v:.4g} V",
                   escape(f"the boost converter draws {m.converter_draw_w:.4g} W for {m.draw_time_s * 1e3:.4g} ms "
-                         f"after each pulse, behind {m.source_resistance_ohm:.4g} ohm and "
+                         f"a pulse, behind {m.source_resistance_ohm:.4g} ohm and "
                          f"{m.capacitance_f * 1e6:.4g} uF; " + (
-                             f"pulsing at the interval, from the {m.lowest_bus_corner} (floor {m.floor_v:.4g} V)"
+                             (f"its runs at least {m.spacing_s * 1e3:.4g} ms apart (the interval less the "
+                              "longest pulse; runs that may touch: one run), " if math.isfinite(m.spacing_s) else
+                              "one run from a full bus (no safe interval), ")
+                             + f"from the {m.lowest_bus_corner} (floor {m.floor_v:.4g} V)"
                              if m.lowest_bus_v is not None else
                              f"more than the source's most, {m.source_limit_w:.4g} W: the bus collapses")))
     if r.cycle is not None:

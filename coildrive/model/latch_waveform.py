@@ -33,8 +33,9 @@ the boost capacitor (:func:`coildrive.model.bridge.boost_return`): the rail is t
 capacitor + ``V_d + R_b i`` then. A ``boost_v`` column is the capacitor through both
 pulses, recharged at ``boost_power`` after each. On a drooping main supply a
 ``main_bus_v`` column is the main bus (:mod:`coildrive.model.converter_bus`: the
-converter draws ``boost_power / boost_efficiency`` from it while it recharges), which
-each switch's node follows while it is off.
+converter draws ``boost_power / boost_efficiency`` from it while it recharges; on a
+bridge the net of the return), which each switch's node follows while it is off (on a
+bridge the rail between the pulses).
 
 Units: s, A, V.
 """
@@ -178,9 +179,10 @@ def fast_decay_after(drive: Drive, rel, i0: float, v0: float, i_drop: float = 0.
     at the pulse's end (:func:`coildrive.model.flux_bus_decay.fast_decays`: a linear coil,
     a flux-linkage curve or an eddy term, whose ``i0`` and ``i_drop`` are magnetising
     currents): its :class:`~coildrive.model.bus_decay.FastDecay` (``drop_time`` to
-    ``i_drop`` A), or ``None`` off a bridge or on a stiff bus. ``rel``: the fast decay's
-    loop at one point."""
-    if not (drive.supply.droops and full_bridge(drive)):
+    ``i_drop`` A), or ``None`` off a bridge, on a stiff bus or from the boost (whose decay
+    returns into the boost capacitor, not the main bus). ``rel``: the fast decay's loop at
+    one point."""
+    if not (drive.supply.droops and full_bridge(drive)) or drive.supply.boosted:
         return None
     coil, i0, v0, v_s, r_s, c, r, v_d = _fast_args(drive, rel, i0, v0)
     return fast_decays(coil, i0, [v0], i_drop, v_s, r_s, c, r, v_d, drive.supply.sink)[0]
@@ -276,7 +278,10 @@ def _main_bus_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp:
     it puts the pulse's ``1/2 C (V_b^2 - v_end^2)`` back at ``boost_power`` (the
     ``boost_v`` column's recharge; each draw ends by the next pulse's start), the bus
     resting in between (:func:`coildrive.model.converter_bus.trace`). ``seating``: with a
-    moving armature the set pulse's (:func:`_boost_column`): ``v_end`` is its run's."""
+    moving armature the set pulse's (:func:`boost_column`): ``v_end`` is its run's. On a
+    full bridge ``v_end`` is the capacitor after the fast decay's return
+    (:func:`coildrive.model.bridge.boost_return`): the converter puts back the net, as the
+    ``boost_v`` column's recharge reaches ``V_b`` once the return is over."""
     from . import converter_bus
 
     s = drive.supply
@@ -284,11 +289,17 @@ def _main_bus_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp:
     for wd, start, length, nxt in ((drive, 0.0, set_time, gap), (reset_drive, gap, reset_time, np.inf)):
         if seating is not None and wd is drive:
             v_end = float(_seating_boost(wd, seating)[1][-1])
+            c_b = s.boost_capacitance
         else:
             lp = loop(wd, supply, coil_temp, r_factor, l_factor)
             b = boost_of(wd, float(lp.r_on), lp.inductance)
-            v_end = float(boost_model.of(b).state(length, b)[1])
-        draw = 0.5 * s.boost_capacitance * (s.boost**2 - v_end**2) / s.boost_power if s.boost_power > 0 else 0.0
+            i_end, v_end = (float(x) for x in boost_model.of(b).state(length, b))
+            c_b = float(b.c)
+            if full_bridge(wd):   # the decay's return into the capacitor first
+                rel = loop(wd, supply, coil_temp, r_factor, l_factor, path="release")
+                ret = boost_return(i_end, v_end, *return_args(wd, rel))
+                v_end = float(boost_return_trace(ret.zero_time, i_end, v_end, *return_args(wd, rel))[1])
+        draw = 0.5 * c_b * (s.boost**2 - v_end**2) / s.boost_power if s.boost_power > 0 else 0.0
         starts.append(start + length)
         lengths.append(min(draw, nxt - start - length))
     return converter_bus.trace(time, starts, lengths, supply, s.source_resistance, s.capacitance,
@@ -363,14 +374,18 @@ def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: 
         cols["boost_v"] = boost_column(drive, reset_drive, supply, coil_temp, r_factor, l_factor, time,
                                        set_time, reset_time, gap,
                                        None if gap_s is None else (ts, is_, ons, buses))
-    if drive.supply.boosted and drive.supply.droops and not full_bridge(drive):
+    if drive.supply.boosted and drive.supply.droops:
         main = _main_bus_column(drive, reset_drive, supply, coil_temp, r_factor, l_factor, time, set_time,
                                 reset_time, gap, None if gap_s is None else (ts, is_, ons, buses))
-        # each switch off, its node follows the top, which the main bus holds
-        off_s = np.concatenate([1.0 - ons, np.ones(n_i + tr.size)])
-        off_r = np.concatenate([np.ones(n_s + n_i), 1.0 - onr])
-        cols["switch_voltage_v"] = cols["switch_voltage_v"] + off_s * (main - supply)
-        cols["reset_switch_voltage_v"] = cols["reset_switch_voltage_v"] + off_r * (main - supply)
+        if full_bridge(drive):   # between the pulses, all five off: the rail (Q1's, Q3's drain) on the main bus
+            idle = np.concatenate([np.zeros(n_s), np.ones(n_i), np.zeros(tr.size)])
+            cols["q1_v"] = cols["q1_v"] + idle * (main - supply)
+            cols["q3_v"] = cols["q3_v"] + idle * (main - supply)
+        else:   # each switch off, its node follows the top, which the main bus holds
+            off_s = np.concatenate([1.0 - ons, np.ones(n_i + tr.size)])
+            off_r = np.concatenate([np.ones(n_s + n_i), 1.0 - onr])
+            cols["switch_voltage_v"] = cols["switch_voltage_v"] + off_s * (main - supply)
+            cols["reset_switch_voltage_v"] = cols["reset_switch_voltage_v"] + off_r * (main - supply)
         cols["main_bus_v"] = main
     gap_all = (None if gap_s is None else
                np.concatenate([gap_s, np.zeros(n_i), np.full(tr.size, np.nan)]))
