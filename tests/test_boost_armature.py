@@ -111,11 +111,11 @@ def reference(g: dict, v_b: float, c_b: float, r_b: float, trip: float, duty: fl
     (the terminal current), the eddy resistance's heat ``int v_L^2 / R_e dt`` and the
     damping's ``int c v^2 dt`` (out: ``sq``, ``core``, ``damp``). ``control``: ``(duty_of,
     fraction)`` for a hold whose duty is set period by period (a closed loop): each period's
-    duty is ``duty_of(samples)`` from the currents converted so far, one a period at
-    ``fraction`` of it (``duty`` unused). ``fast``: ``(fraction, R_fast, V_fast)``, a full
-    bridge's mixed-decay hold -- the first ``fraction`` of each off-time ``-(R_fast i +
-    V_fast)`` while ``i > 0`` (all four open, the body diodes into the bus), the rest the
-    ``off`` path."""
+    duty is ``duty_of(samples)`` from the currents converted so far (the terminal current
+    with ``r_e``), one a period at ``fraction`` of it (``duty`` unused). ``fast``:
+    ``(fraction, R_fast, V_fast)``, a full bridge's mixed-decay hold -- the first
+    ``fraction`` of each off-time ``-(R_fast i + V_fast)`` while ``i > 0`` (all four open,
+    the body diodes into the bus), the rest the ``off`` path."""
     from scipy.integrate import solve_ivp
 
     s = g["stroke"]
@@ -158,19 +158,23 @@ def reference(g: dict, v_b: float, c_b: float, r_b: float, trip: float, duty: fl
         pieces = [("on", start + d * period), ("off", start + period)]
         if fast is not None:
             pieces.insert(1, ("fast", start + (d + fast[0] * (1 - d)) * period))
-        if control is not None:   # a stop at the conversion, inside the piece it falls in
-            at = start + control[1] * period
-            pieces = sorted(pieces + [("on" if at < start + d * period else "off", at, "sample")],
+        if control is not None:   # a stop at the conversion, inside the piece it falls in (on
+            at = start + control[1] * period     # at the on-time's end, as the driver's timer)
+            pieces = sorted(pieces + [("on" if at <= start + d * period else "off", at, "sample")],
                             key=lambda x: x[1])
         for piece in pieces:
+            if piece[1] <= t:   # (a conversion at an edge: no time to fly)
+                if len(piece) > 2:
+                    samples.append(loop(piece[0], y)[1])
+                continue
             sol = solve_ivp(rhs(piece[0], True), (t, piece[1]), y, events=[seat], **opts)
             t, y = float(sol.t[-1]), list(sol.y[:, -1])
             y[0] = max(y[0], 0.0) if r_e is None else y[0]
             if sol.t_events[0].size:
                 out["seat"] = t
                 break
-            if len(piece) > 2:
-                samples.append(y[0])
+            if len(piece) > 2:   # what the sense carries (with r_e: the terminal current)
+                samples.append(loop(piece[0], y)[1])
         k += 1
     return out
 
