@@ -102,7 +102,7 @@ def circuit(g: dict, c_b: float, r_b: float, r_e: float | None = None, bus: tupl
 
 
 def reference(g: dict, v_b: float, c_b: float, r_b: float, trip: float, duty: float, period: float,
-              t_end: float, r_e: float | None = None, control=None, fast=None) -> dict:
+              t_end: float, r_e: float | None = None, control=None, fast=None, bus=None) -> dict:
     """solve_ivp (DOP853) of the module docstring's equations, piece by piece. ``r_e``: an
     eddy resistance across the inductance -- ``i`` is then the inductance's current, the
     loop carries the terminal current ``(V + R_e i)/(R + R_e)`` (off: ``(R_e i - V_off)/(R_off
@@ -111,11 +111,13 @@ def reference(g: dict, v_b: float, c_b: float, r_b: float, trip: float, duty: fl
     (the terminal current), the eddy resistance's heat ``int v_L^2 / R_e dt`` and the
     damping's ``int c v^2 dt`` (out: ``sq``, ``core``, ``damp``). ``control``: ``(duty_of,
     fraction)`` for a hold whose duty is set period by period (a closed loop): each period's
-    duty is ``duty_of(samples)`` from the currents converted so far, one a period at
-    ``fraction`` of it (``duty`` unused). ``fast``: ``(fraction, R_fast, V_fast)``, a full
-    bridge's mixed-decay hold -- the first ``fraction`` of each off-time ``-(R_fast i +
-    V_fast)`` while ``i > 0`` (all four open, the body diodes into the bus), the rest the
-    ``off`` path."""
+    duty is ``duty_of(samples)`` from the currents converted so far (the terminal current
+    with ``r_e``), one a period at ``fraction`` of it (``duty`` unused). ``fast``:
+    ``(fraction, R_fast, V_fast)``, a full bridge's mixed-decay hold -- the first
+    ``fraction`` of each off-time ``-(R_fast i + V_fast)`` while ``i > 0`` (all four open,
+    the body diodes into the bus), the rest the ``off`` path. ``bus``: ``(R_s, C, V_s)``,
+    the hold from a drooping main bus (:func:`circuit`) starting at ``V_s`` at the threshold
+    (out: ``bus``, V at the seat)."""
     from scipy.integrate import solve_ivp
 
     s = g["stroke"]
@@ -150,6 +152,9 @@ def reference(g: dict, v_b: float, c_b: float, r_b: float, trip: float, duty: fl
             sol = solve_ivp(rhs("boost", False), (t, t_end), y, events=[at_trip], **opts)
             t, y = float(sol.t[-1]), list(sol.y[:, -1])
     out.update(trip=t, i=y[0], x=y[1], v=y[2], u=y[3], sq=y[4], core=y[5], damp=y[6])
+    if bus is not None and "seat" not in out:   # the main bus from the source's voltage
+        loop, rhs = circuit(g, c_b, r_b, r_e, bus, fast)
+        y[3] = bus[2]
     k = 0
     samples: list[float] = []
     while "seat" not in out and t < t_end:
@@ -158,19 +163,23 @@ def reference(g: dict, v_b: float, c_b: float, r_b: float, trip: float, duty: fl
         pieces = [("on", start + d * period), ("off", start + period)]
         if fast is not None:
             pieces.insert(1, ("fast", start + (d + fast[0] * (1 - d)) * period))
-        if control is not None:   # a stop at the conversion, inside the piece it falls in
-            at = start + control[1] * period
-            pieces = sorted(pieces + [("on" if at < start + d * period else "off", at, "sample")],
-                            key=lambda x: x[1])
+        if control is not None:   # a stop at the conversion, inside the piece it falls in (the
+            at = start + control[1] * period     # earlier one at an edge, as the driver's timer)
+            inside = next(piece[0] for piece in pieces if at <= piece[1])
+            pieces = sorted(pieces + [(inside, at, "sample")], key=lambda x: x[1])
         for piece in pieces:
+            if piece[1] <= t:   # (a conversion at an edge: no time to fly)
+                if len(piece) > 2:
+                    samples.append(loop(piece[0], y)[1])
+                continue
             sol = solve_ivp(rhs(piece[0], True), (t, piece[1]), y, events=[seat], **opts)
             t, y = float(sol.t[-1]), list(sol.y[:, -1])
             y[0] = max(y[0], 0.0) if r_e is None else y[0]
             if sol.t_events[0].size:
-                out["seat"] = t
+                out["seat"], out["bus"] = t, y[3]
                 break
-            if len(piece) > 2:
-                samples.append(y[0])
+            if len(piece) > 2:   # what the sense carries (with r_e: the terminal current)
+                samples.append(loop(piece[0], y)[1])
         k += 1
     return out
 

@@ -36,8 +36,9 @@ gets there, the highest trip current -- then the hold on the bus).
 
 Under a closed-loop hold the pull-in run is redone where the armature is still in flight
 when the peak ends, each hold period's duty the driver's integer PI on the period's
-conversion (:class:`LoopControl`, :func:`loop_pull_in`); a current-mode hold needs it seated
-within the peak (:func:`require_seated_in_peak`).
+conversion (:class:`LoopControl`, :func:`loop_pull_in`; with an eddy term the conversion
+reads the terminal current); a current-mode hold needs it seated within the peak
+(:func:`require_seated_in_peak`).
 """
 
 from __future__ import annotations
@@ -385,8 +386,13 @@ def loop_pull_in(drive: Drive, res, loop, counts: int, reading, switch_leg: bool
     not yet seated when the peak ends: from the threshold the integer PI of
     :class:`LoopControl` (preloaded, cutting the duty while the reading is above the
     set-point) carries it, period by period, as the firmware does (``reading``: the sense
-    chain's reading over the true current per point, its high end). The seat times, the
-    pull-in time and the runs' ``slow`` follow; points seated within the peak keep theirs."""
+    chain's reading over the true current per point, its high end; with an eddy term the
+    conversions read the terminal current, :func:`~coildrive.model.armature_boost.boosted_pull_in`).
+    On a drooping main supply the flight runs on the bus as the runs' pull-in does (their
+    ``hold_params``: the converter's draw out of the source, the bus from the source's
+    voltage). The seat times, the pull-in time and the runs' ``slow`` follow (its lowest bus
+    stays the runs': a closed loop's bus is the hand-over's floor); points seated within the
+    peak keep theirs."""
     from .boost import threshold
 
     arm = res.armature
@@ -403,9 +409,13 @@ def loop_pull_in(drive: Drive, res, loop, counts: int, reading, switch_leg: bool
     i_th, code, _ = threshold(drive)
     period = np.ravel(np.broadcast_to(np.asarray(res.hold.period, float), (len(arm.params),)))[late]
     mixed = _mixed(res.loop)
-    got = boosted_pull_in(boosted_params(drive, p, False), clamp_draws(drive, p), i_th, control.first(code), period,
-                          runs_.window, rtol=1e-7, control=control,
-                          mixed=None if mixed is None else mixed.at(late))
+    # on a drooping main supply the hold's points with the converter's draw out of the source
+    # (the runs' own, a clamp's draw in the off-times too), the bus from the source's voltage
+    # at the hand-over
+    p_hold = clamp_draws(drive, p) if runs_.hold_params is None else runs_.hold_params.take(late)
+    got = boosted_pull_in(boosted_params(drive, p, False), p_hold, i_th, control.first(code), period,
+                          runs_.window, rtol=1e-7, bus0=p.v_on if p.droops else None, orbit=False,
+                          control=control, mixed=None if mixed is None else mixed.at(late))
     fields = ("status", "seat_time", "seat_current", "impact_time", "impact_speed", "dip_current",
               "dip_time", "stall_gap", "bound", "bounces", "steps")
     merged = {}

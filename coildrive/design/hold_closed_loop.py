@@ -179,14 +179,10 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
         saturated = np.isnan(d_weak) | np.isnan(d_strong) | (d_weak <= floor + 1e-12) & (floor > 0)
         loop_result = _loop(drive, env, lp, first, run_low, f, period, setpoint, lsb, min_compare,
                             max_compare, saturated, switch_leg, preload)
-        if drive.supply.boosted and first.armature is not None and drive.coil.eddy_resistance:
-            from .boost_armature import require_seated_in_peak
-            require_seated_in_peak(drive, env.label, first.armature.pull_in, "hold.regulation",
-                                   "a closed-loop hold with an eddy-current term", "the loop's samples "
-                                   "of the terminal current are not modelled in flight")
-        elif drive.supply.boosted and first.armature is not None:
+        if drive.supply.boosted and first.armature is not None:
             # an armature still in flight when the boosted peak ends: the loop's own duties
-            # (its integer PI from the preload, the chain reading high) carry it on
+            # (its integer PI from the preload, the chain reading high; with an eddy term
+            # on the terminal current its conversions read) carry it on
             from .boost_armature import loop_pull_in
             first = loop_pull_in(drive, first, loop_result, period,
                                  reading_range(env.sense_factor, gt)[1], switch_leg)

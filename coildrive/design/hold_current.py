@@ -469,8 +469,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
             require_seated_in_peak(drive, grid.label, first.armature.pull_in, "hold.mode",
                                    "a current-mode hold", "its thresholds would switch the coil with "
                                    "the armature moving",
-                                   "a voltage-mode hold" + ("" if drive.coil.eddy_resistance else
-                                                            " (or the closed loop, which carries it)"))
+                                   "a voltage-mode hold (or the closed loop, which carries it)")
         pk = plan_peak(drive, grid, first)
         # the longest real peak: the ticks and the driver's switch lead
         longer = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate + switch_lag(drive)[1]

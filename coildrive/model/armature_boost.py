@@ -22,7 +22,8 @@ boosted peak over the envelope -- flying a weak hold's slow approach edge by edg
 the mechanics' own time bound would cost minutes over the envelope, and an armature that
 is not seated by then fails the design anyway). A hold whose duty the firmware sets period
 by period (a closed loop: ``control``) flies the same edges with each period's duty from the
-current at the period's conversion (the flight's state there).
+current at the period's conversion (the flight's state there; with an eddy term the
+terminal current of the segment it falls in, what the sense carries).
 
 A full bridge's mixed-decay hold (``mixed``, a :class:`~coildrive.model.pwm.MixedDecay`
 per point) starts each off-time of the flights fast -- all four switches open, through the
@@ -140,7 +141,11 @@ def boosted_pull_in(p_boost: ArmatureParams, p_hold: ArmatureParams, trip, duty,
     (a closed loop), else ``None`` (``duty`` throughout). It has ``sample(duty)`` (the
     conversion's moment in each period, a fraction of it, per point) and ``step(k, i)``
     (the next period's duty at points ``k`` from the current ``i`` A converted in the period
-    that ends); ``duty`` is then the first period's. Where the armature falls back to the
+    that ends); ``duty`` is then the first period's. With an eddy term the current converted
+    is the terminal current the sense carries (:meth:`~coildrive.model.armature.ArmatureParams.terminal`
+    in the segment the conversion falls in: on, off through the hold's path or a mixed
+    decay's fast one, 0 where the freewheel has blocked; on a drooping bus from the bus
+    there). Where the armature falls back to the
     open stop under it, it is taken as not seated (STALLED at the full stroke).
 
     ``mixed``: a full bridge's mixed-decay hold (its arrays per point; a stiff main supply),
@@ -277,6 +282,9 @@ def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: f
     if control is not None:   # the conversion's moment in the period, and the state there
         at = t + control.sample(duty) * period
         sampled = np.full((y.shape[0], n), np.nan)   # (on a drooping bus six states)
+        # with an eddy term the loop reads the terminal current, which depends on the
+        # segment the conversion falls in: its switch, off path and freewheel there
+        seg = np.zeros((3, n), bool)
     bound = np.maximum(np.asarray(until, float), t)
     lam_stay = p.flux_closed(p.stay_current)
     lam_start = p.flux_open(p.start_current)
@@ -306,8 +314,12 @@ def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: f
             break
         p_now = p if mixed is None else dataclasses.replace(
             p, r_off=np.where(fast, mixed.r_fast, p.r_off), v_off=np.where(fast, mixed.v_fast, p.v_off))
+        before = None if control is None else np.isnan(sampled[0])
         fl = fly_mixed(p_now, t, y, edge, active, on, live, stiff, rtol, **track,
                        **({} if control is None else {"query": at, "query_y": sampled}))
+        if control is not None:   # (a sample taken in this flight: the segment's state)
+            got = before & np.isfinite(sampled[0])
+            seg[:, got] = np.stack([on, fast, live])[:, got]
         res["steps"] += np.where(active, fl.steps, 0)
         t = np.where(active, fl.t, t)
         y = np.where(active, fl.y, y)
@@ -356,8 +368,17 @@ def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: f
         cycle = np.where(back, cycle + period, cycle)
         if control is not None and back.any():   # the next period's duty from its conversion
             j = np.flatnonzero(back)
-            i_s = p.take(j).current(sampled[0, j], sampled[1, j])
-            duty[j] = control.step(j, np.where(np.isfinite(i_s), i_s, p.take(j).current(y[0, j], y[1, j])))
+            taken = np.isfinite(sampled[0, j])
+            pj = p.take(j)
+            i_s = pj.current(np.where(taken, sampled[0, j], y[0, j]), np.where(taken, sampled[1, j], y[1, j]))
+            if p.eddy is not None:   # what the sense carries: the terminal current
+                s_on, s_fast, s_live = (np.where(taken, seg[r, j], (on, fast, live)[r][j]) for r in range(3))
+                bus = (np.where(taken, sampled[5, j], y[5, j]) if droop else None)
+                r_off, v_off = ((pj.r_off, pj.v_off) if mixed is None else
+                                (np.where(s_fast, mixed.r_fast[j], pj.r_off),
+                                 np.where(s_fast, mixed.v_fast[j], pj.v_off)))
+                i_s = np.where(s_on | s_live, pj.terminal(i_s, s_on, r_off, v_off, bus), 0.0)
+            duty[j] = control.step(j, i_s)
             t_on = duty * period
             at = np.where(back, t0 + cycle + control.sample(duty) * period, at)
             sampled[:, j] = np.nan
