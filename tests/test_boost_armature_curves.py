@@ -328,22 +328,12 @@ def test_emulated_saturating_drive_passes_check_and_a_weak_coil_fails(saturating
     """The virtual bench device runs the boosted actuation over the curves: its capture
     passes ``check``; a coil 40 % over its resistance fails it (plumbing: the device
     shares the design's physics)."""
-    from test_emulator_device import capture_of, run as run_device
+    from test_boost_armature import emulated_passes_and_weak_coil_fails
 
-    from coildrive.bench.check import check_capture
-    from coildrive.bench.device import DeviceOptions, VirtualDevice
     from coildrive.config import load_drive
     from coildrive.design import design
 
-    d = design(load_drive(saturating[0]))
-    dev = VirtualDevice(d.drive, DeviceOptions(noise_codes=1.0, seed=3, hold_time=0.004), design=d)
-    assert dev.peak_time < d.pull_in.peak_time_s, "ends at the threshold, before the time-out"
-    msgs, _ = run_device(dev, 0.05 + 2 * dev.period, step=0.05)
-    report = check_capture(capture_of(msgs, tmp_path / "c.cdcap"), d)
-    assert report.ok, [(i.name, i.status, i.detail) for i in report.items if i.status == "FAIL"]
-    bad = VirtualDevice(d.drive, DeviceOptions(resistance_scale=1.4, hold_time=0.004), design=d)
-    msgs, _ = run_device(bad, 0.05 + bad.period, step=0.05)
-    assert not check_capture(capture_of(msgs, tmp_path / "bad.cdcap"), d).ok
+    emulated_passes_and_weak_coil_fails(design(load_drive(saturating[0])), tmp_path)
 
 
 @pytest.mark.compiler
