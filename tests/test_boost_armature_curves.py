@@ -350,7 +350,7 @@ def test_firmware_in_the_loop_over_the_curves(saturating, tmp_path):
     path = saturating[0]
     d = design(load_drive(path))
     temp = max(c.coil_temp_c for c in d.corners)
-    (cap_path, cap), = loop_captures(tmp_path, d, [(d.drive.supply.min, temp, None)], hold_time=0.01)
+    (cap_path, cap), = loop_captures(tmp_path, d, [(d.drive.supply.min, temp, None)], hold_time=0.004)
     kinds = [int(e.kind) for e in cap.events]
     assert int(EventKind.FAULT) not in kinds and int(EventKind.PEAK_END) in kinds, kinds
     rows = checked_rows(cap_path, path, temp)
