@@ -1478,6 +1478,36 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
     return None
 
 
+def _boosted_curves_refusal(coil: Coil, switch: Switch, freewheel: Freewheel, supply: Supply, hold: Hold,
+                            duty) -> tuple[str, str] | None:
+    """``(key, why)`` where a moving armature over its open and seated flux-linkage curves
+    is not modelled with the boosted peak, else ``None``: it is
+    (:func:`coildrive.model.armature_runs.pull_in` with a trip, the boost capacitor a state;
+    :func:`coildrive.model.armature_boost.curve_window` the conversion after the threshold)
+    from a boost capacitor on one low- or high-side switch with a diode, Zener or resistor
+    freewheel (no split decay), a stiff main supply, a voltage-mode fixed or supply-table
+    hold, no eddy term and no on/off cycle."""
+    what = "a moving armature over its open and seated flux-linkage curves"
+    if not supply.boost_capacitance > 0:
+        return "supply.boost_capacitance", f"{what} from an ideal boost (a boost capacitor only: give its capacitance)"
+    if coil.eddy_resistance:
+        return "coil.eddy_resistance", f"{what} and an eddy-current term"
+    if supply.droops:
+        return "supply.source_resistance", f"{what} on a drooping main supply (a stiff one only)"
+    if switch.topology == "full_bridge":
+        return "switch.topology", f"{what} on a full bridge (one low- or high-side switch only)"
+    if freewheel.type == "clamp" or freewheel.split_decay:
+        return (("freewheel.type" if freewheel.type == "clamp" else "freewheel.split_decay"),
+                f"{what} and a clamp or split decay (a diode, Zener or resistor freewheel only)")
+    if hold.mode != "voltage" or hold.regulation == "closed_loop":
+        return (("hold.mode" if hold.mode != "voltage" else "hold.regulation"),
+                f"{what} under a current-mode or closed-loop hold (a voltage-mode fixed or supply-table "
+                "hold only)")
+    if duty is not None:
+        return "duty", f"{what} over an on/off cycle ([duty]: the boosted run's peak heat is a linear coil's)"
+    return None
+
+
 def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, freewheel: Freewheel,
                  supply: Supply, hold: Hold, pull_in: PullIn, armature: Armature | None,
                  duty, latch: "Latch | None" = None) -> None:
@@ -1500,7 +1530,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     :func:`coildrive.model.armature_bus_release.release_over`, a slow-decay hold), a PWM
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
     mode), a peak that ends at its threshold. A moving armature
-    (:mod:`coildrive.model.armature_boost`): a linear coil (an eddy term too), a
+    (:mod:`coildrive.model.armature_boost`): a linear coil (an eddy term too; or its open
+    and seated flux-linkage curves where :func:`_boosted_curves_refusal` allows them), a
     voltage-mode hold (fixed or supply table; on a full bridge slow decay or mixed decay,
     the flights after the threshold taking each off-time's fast part through the body
     diodes; or the closed loop, which carries an armature in flight with its own PI:
@@ -1533,6 +1564,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                                    "eddy-current term on a flux-linkage curve (the release into the "
                                    "drooping bus with the converter drawing and the feed blocking is a "
                                    "linear coil's, a curve's or an eddy term's on a linear coil)")
+    elif armature is not None and coil.flux_current and hold.mode != "latch" and _boosted_curves_refusal(
+            coil, switch, freewheel, supply, hold, duty):
+        key, why = _boosted_curves_refusal(coil, switch, freewheel, supply, hold, duty)
     elif hold.mode == "latch" and _boosted_latch_refusal(coil, switch, supply, armature, latch):
         key, why = _boosted_latch_refusal(coil, switch, supply, armature, latch)
     elif hold.mode == "latch" and freewheel.type == "clamp" and supply.droops:
@@ -1562,7 +1596,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "diode/zener/resistor freewheel (split decay too) or a clamp, a stiff "
                          "main supply (or a drooping one; on a full bridge a linear coil or a curve, an eddy "
                          "term on a linear coil, or on a curve on a supply that sinks; with [armature] a "
-                         "linear coil, an eddy term too, a clamp without split decay, on a full bridge a "
+                         "linear coil, an eddy term too (or its open and seated flux-linkage curves from a "
+                         "boost capacitor on one switch, a stiff main supply, a voltage-mode fixed or "
+                         "supply-table hold), a clamp without split decay, on a full bridge a "
                          "slow-decay hold), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; a "
                          "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, or a "

@@ -336,6 +336,15 @@ def test_emulated_drive_passes_check_and_a_weak_coil_fails(tmp_path):
     """The virtual bench device runs the design's actuation (the boost, the threshold, the
     armature into the hold): its capture passes ``check``; a coil 40 % over its
     resistance fails it (plumbing: the device shares the design's physics)."""
+    from coildrive.config import load_drive
+    from coildrive.design import design
+
+    emulated_passes_and_weak_coil_fails(design(load_drive(EXAMPLE)), tmp_path)
+
+
+def emulated_passes_and_weak_coil_fails(d, tmp_path) -> None:
+    """The virtual bench device's capture of design ``d`` passes ``check``; one of a coil
+    40 % over its resistance fails it."""
     import sys
 
     sys.path.insert(0, str(Path(__file__).parent))
@@ -343,10 +352,7 @@ def test_emulated_drive_passes_check_and_a_weak_coil_fails(tmp_path):
 
     from coildrive.bench.check import check_capture
     from coildrive.bench.device import DeviceOptions, VirtualDevice
-    from coildrive.config import load_drive
-    from coildrive.design import design
 
-    d = design(load_drive(EXAMPLE))
     dev = VirtualDevice(d.drive, DeviceOptions(noise_codes=1.0, seed=3, hold_time=0.004), design=d)
     assert dev.peak_time < d.pull_in.peak_time_s, "ends at the threshold, before the time-out"
     msgs, _ = run_device(dev, 0.05 + 2 * dev.period, step=0.05)

@@ -50,7 +50,8 @@ import numpy as np
 from ..config import Drive
 from ..errors import InputError
 from ..model.armature import ArmatureParams, params_from_loop
-from ..model.armature_boost import boost_energy, boost_params, boosted_pull_in, seated_in_peak, window_flight
+from ..model.armature_boost import (boost_energy, boost_params, boosted_pull_in, curve_window, seated_in_peak,
+                                    window_flight)
 from ..model.armature_runs import PullInBatch, pull_in
 from ..model.circuit import Loop
 from ..model.rl import rise_current
@@ -119,10 +120,18 @@ def _end(drive: Drive, pb: ArmatureParams, pin: PullInBatch, i_trip: float):
     end or until the armature rests at a stop, and the open coil's rise bounds only the rest
     of it, from the current (the magnetising current) and the capacitor there; the most
     current is the larger of the flight's highest and that rise's end.
+    With the two flux-linkage curves (``pb.curves``) the conversion is flown exactly
+    at every point that trips (:func:`~coildrive.model.armature_boost.curve_window`: a
+    saturating coil's rise has no such bound); the most current is its highest.
     Where the trip never comes: ``inf``, ``i_trip``, the boost's full voltage, NaN."""
     dt = conversion_period(drive)
     n = len(pb)
     hit = np.isfinite(pin.trip_time)
+    if pb.curves is not None:
+        high, _, y = curve_window(pb, pin, dt)
+        nan = np.full(n, np.nan)
+        return (np.where(hit, pin.trip_time + dt, np.inf), np.where(hit, high, i_trip),
+                np.where(hit, y[5], pb.v_on), np.where(hit, boost_energy(pb, np.where(hit, y, 0.0)), nan))
     y = np.where(hit, pin.trip_state, 0.0)
     rest, i_from, top = np.full(n, dt), np.full(n, float(i_trip)), np.zeros(n)
     flown = np.zeros(n, bool)

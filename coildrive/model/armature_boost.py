@@ -57,8 +57,8 @@ import math
 
 import numpy as np
 
-from .armature import (BOUND, MAX_BOUNCES, OPEN, REST_FRACTION, SEAT, SEATED, STALLED, TRIPPED, ZERO,
-                       ArmatureParams)
+from .armature import (BOUND, MAX_BOUNCES, OPEN, REST_FRACTION, SEAT, SEATED, STALLED, START, TRIPPED,
+                       ZERO, ArmatureParams)
 from .armature_flight import fly_mixed, is_stiff
 from .armature_runs import PullInBatch, pull_in
 from .pwm import MixedDecay
@@ -488,6 +488,60 @@ def window_flight(p: ArmatureParams, pin: PullInBatch, dt: float, rtol: float = 
     if p.eddy is not None and not sensed:
         high = p.terminal(high, True)
     return flown, high, t, y
+
+
+def curve_window(p: ArmatureParams, pin: PullInBatch, dt: float, rtol: float = 1e-7):
+    """The ``dt`` s after a :func:`~coildrive.model.armature_runs.pull_in` run's trip from
+    the boost capacitor for a coil with curves (``p.curves``, no eddy term), the boost
+    still on, flown exactly at every point that trips: in flight (bounces as in the
+    pull-in), at rest on a stop held there (the open stop until the flux reaches the start
+    current's, the seat for good unless its flux is below the stay current's). No
+    closed-form rise bounds a saturating coil's current over the window (its incremental
+    inductance falls as it saturates, the seated curve's at a current may lie below the
+    open one's), so the window is integrated, not bounded.
+
+    Returns ``(highest A, t s, y)`` per point: the highest coil current over the window
+    (at its accepted steps and its end) and the state (rows of the run) at its end; where
+    the trip never comes the trip's (NaN) state and ``nan``."""
+    n = len(p)
+    hit = np.isfinite(pin.trip_time)
+    t = np.where(hit, pin.trip_time, 0.0)
+    y = np.where(hit, pin.trip_state, 0.0)
+    peak = np.stack([p.current(y[0], y[1]), t])
+    t_end = t + dt
+    lam_start = p.flux_open(p.start_current)
+    lam_stay = p.flux_closed(p.stay_current)
+    on = np.ones(n, bool)
+    stiff = is_stiff(p, p.opening_force(p.stroke))
+    rest = hit & (y[2] == 0.0)
+    at_open = rest & (y[1] >= p.stroke) & (y[0] < lam_start)
+    held = at_open | (rest & (y[1] <= 0.0))
+    impact = np.array(pin.impact_speed, float)
+    bounces = np.array(pin.bounces, int)
+    active = hit.copy()
+    for _ in range(8 * MAX_BOUNCES):
+        if not active.any():
+            break
+        fl = fly_mixed(p, t, y, t_end, active, on, on, stiff, rtol, track=active.copy(), peak=peak,
+                       held=held, flux_to=np.where(at_open, lam_start, np.inf))
+        t = np.where(active, fl.t, t)
+        y = np.where(active, fl.y, y)
+        starts = active & held & (fl.end == START)           # off the open stop
+        seat = active & ~held & (fl.end == SEAT)
+        impact = np.where(seat & np.isnan(impact), -y[2], impact)
+        rebound = p.restitution * np.abs(y[2])
+        bounce = seat & (rebound >= REST_FRACTION * impact) & (bounces < MAX_BOUNCES) & (rebound > 0)
+        bounces += bounce
+        rests = seat & ~bounce & (y[0] >= lam_stay)          # on the seat for the rest of it
+        opn = active & ~held & (fl.end == OPEN)
+        stays = opn & (y[0] <= lam_start)                    # back on the open stop
+        y[2] = np.where(bounce, rebound, np.where(seat | opn, 0.0, y[2]))
+        held = np.where(starts, False, held | rests | stays)
+        at_open = np.where(starts, False, at_open | stays)
+        active &= ~(fl.end == BOUND) | starts
+    high = np.maximum(peak[0], p.current(y[0], y[1]))
+    nan = np.full(n, np.nan)
+    return np.where(hit, high, nan), np.where(hit, t, nan), np.where(hit, y, np.nan)
 
 
 def seated_on(p: ArmatureParams, y, dt) -> np.ndarray:

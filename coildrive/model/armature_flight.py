@@ -40,6 +40,9 @@ from .armature import BOUND, OPEN, RUNNING, SEAT, START, TRIP, ZERO, ArmaturePar
 
 #: Hard cap on integrator steps per flight (never hang).
 MAX_STEPS = 20_000
+#: A boosted peak's threshold on a coil with curves found past this fraction of a step: the
+#: step is redone short of it (:func:`fly`), so the event lands in a step this much shorter
+TRIP_REDO = 0.01
 
 # Dormand-Prince 5(4) coefficients (Dormand & Prince 1980; the tableau of scipy's RK45).
 _A = (
@@ -234,8 +237,12 @@ class _Rhs:
 
     def current_rate(self, y, dy):
         """The coil's current A at states ``y`` and its rate A/s given their derivatives
-        ``dy`` (a linear coil: ``i = lambda (1 + beta x) / L_c``)."""
+        ``dy`` (a linear coil: ``i = lambda (1 + beta x) / L_c``; curves: their blend's
+        partials, :meth:`~coildrive.model.gap_curves.GapCurves.state`)."""
         lam, x = y[0], y[1]
+        if self.curves is not None:
+            i, di_dl, di_dx, _, _ = self.curves.state(lam, x)
+            return i, di_dl * dy[0] + di_dx * dy[1]
         di_dl = (1.0 + self.beta * x) * self.inv_lc
         return lam * di_dl, di_dl * dy[0] + lam * self.beta * self.inv_lc * dy[1]
 
@@ -413,7 +420,7 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
     on the drooping bus; it ends (code START) where the flux linkage rises to ``flux_to`` Wb
     current_to : A per point (``inf``: none): a free flight ends (code TRIP) where the
     coil's current (with an eddy term the terminal current) rises to it -- a boosted peak's
-    threshold (a linear coil)
+    threshold
     flux_down : Wb per point: where ``held``, the resting stretch ends (code START) where
     the flux linkage falls to it instead (the seated coil's decay to the stay current)
     returns : V per point, a full bridge's two body diodes ``2 V_d``: switched off, the
@@ -473,6 +480,10 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
             ks.append(k7)
             err = h * sum(e * k for e, k in zip(DP_E, ks) if e)
         norm = np.max(np.abs(err[rows]) / (scale + rtol * np.abs(y[rows])), axis=0)
+        if held is not None:   # a resting stretch takes few steps: its integrals under control too
+            # (relative to their size at the step's ends: int i dt, int i^2 dt feed the energies)
+            size = np.maximum(np.abs(y[3:5]), np.abs(y_new[3:5]))
+            norm = np.maximum(norm, np.max(np.abs(err[3:5]) / (rtol * size + 1e-300), axis=0))
         ok = active & (norm <= 1.0)
         steps += active
         # stop events inside accepted steps
@@ -517,6 +528,12 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
             if rhs.t1 is None:   # (with an eddy term the flux outlasts the terminal current)
                 y_hit[0] = np.where(kind == ZERO, 0.0, y_hit[0])
             y_new = np.where(hit, y_hit, y_new)
+        redo = None
+        if trip_at is not None and rhs.curves is not None:
+            # a curve's current is not the cubic of the step's ends that the root takes: a
+            # threshold well inside a step is stepped to again, so it falls in a short one
+            redo = hit & (kind == TRIP) & (theta > TRIP_REDO)
+            ok, hit = ok & ~redo, hit & ~redo
         t_new = t + theta * h
         if query is not None:
             qmask = ok & (t < query) & (query <= t_new)
@@ -556,6 +573,8 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
             fac = np.clip(0.9 * norm ** (-1.0 / 3.0 if stiff else -0.2), 0.2, 5.0)
         fac = np.where(norm <= 1.0, fac, np.minimum(fac, 0.9))
         h = np.where(active, h * fac, h)
+        if redo is not None:
+            h = np.where(redo, 0.999 * theta * h / fac, h)
         tiny = active & (h < 1e-12 * np.maximum(np.abs(t_end), 1e-9))
         end = np.where(tiny, BOUND, end)
         active = active & ~tiny

@@ -116,14 +116,17 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     open stop, the seat until ``peak_time``) are integrated by the same batched
     integrator with the armature held at its stop (``fly(held=...)``).
 
-    ``trip`` (A, per point; a linear coil): a boosted peak's threshold on the coil's
+    ``trip`` (A, per point): a boosted peak's threshold on the coil's
     current (with an eddy term the terminal current, what the sense sees) -- the run ends
     where it first reaches it (before the
     motion: the open coil's closed form; in flight: the integrator's ``current_to``
     event) with status TRIPPED; where the armature seats first, the trip is the seated
     coil's closed-form rise from the seat (``trip_time``, ``trip_state``). ``p`` is then
     the peak's source: the boost (``v_on``; ``r_on`` with the boost path; a capacitor:
-    ``capacitance`` with ``source_resistance = inf``, no source behind it).
+    ``capacitance`` with ``source_resistance = inf``, no source behind it). A coil with
+    curves (no eddy term) takes the boost capacitor: its resting stretches to the trip are
+    the held flights (:func:`_held_rise` to the lower of the start's and the trip's open
+    flux, :func:`_seated_trip` on the seat to the trip's seated flux).
 
     ``eddy_loss`` (an eddy term on a drooping bus or a boost capacitor, a linear coil): the
     run carries a seventh state, the eddy resistance's loss ``R_e int (i_m - i_t)^2 dt`` J
@@ -132,8 +135,8 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     :func:`coildrive.model.supply.eddy_loss_from` of their closed form.
     """
     n = len(p)
-    if trip is not None and p.curves is not None:
-        raise ValueError("pull_in's trip is on a linear coil's current (no curves)")
+    if trip is not None and p.curves is not None and (p.eddy is not None or not p.droops):
+        raise ValueError("pull_in's trip on a coil with curves takes a boost capacitor and no eddy term")
     droop = p.droops
     curved = droop and p.curves is not None
     if eddy_loss and (p.eddy is None or not droop or curved):
@@ -154,8 +157,19 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
         stiff = is_stiff(p, f_inf)
         low_until = np.full(n, np.inf) if want is None else want
         low = np.stack([p.v_on.astype(float), np.zeros(n)])
-        t_start, q0, s0, u_start, st = _held_rise(p, i_inf, stiff, rtol, want, query_y, low, low_until)
+        lam_to = p.flux_open(p.start_current)
+        if trip is not None:   # the threshold first where the open coil reaches it on the stop
+            trip = np.broadcast_to(np.asarray(trip, float), (n,))
+            lam_trip = p.flux_open(trip)
+            first_trip = lam_trip < lam_to
+            lam_to = np.minimum(lam_to, lam_trip)
+        t_start, q0, s0, u_start, st, y_held = _held_rise(p, i_inf, stiff, rtol, want, query_y, low,
+                                                         low_until, lam_to)
         steps += st
+        if trip is not None:
+            held_trip = first_trip & np.isfinite(t_start)
+            trip_held = (np.where(held_trip, t_start, np.inf), np.where(held_trip, y_held, np.nan))
+            t_start = np.where(first_trip, np.inf, t_start)   # (it never starts within the run)
         moves = np.isfinite(t_start)
         b_open = None
     elif droop:
@@ -189,7 +203,8 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     trip_time = trip_y = None
     if trip is not None:
         trip = np.broadcast_to(np.asarray(trip, float), (n,))
-        trip_time, trip_y = _early_trip(p, trip, np.where(moves, t_start, np.inf), eddy_loss)
+        trip_time, trip_y = (trip_held if curved else
+                             _early_trip(p, trip, np.where(moves, t_start, np.inf), eddy_loss))
         early = np.isfinite(trip_time)
         status = np.where(early, TRIPPED, status)
     impact_time, impact_speed, dip_current = nan.copy(), nan.copy(), nan.copy()
@@ -318,8 +333,13 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     stall_gap = np.where((status == STALLED) & np.isnan(stall_gap), y[1], stall_gap)
     seated = status == SEATED
     if trip is not None:
-        trip_time, trip_y = _seated_trip(p, trip, seated, seat_time, seat_current, seat_bus, seat_q,
-                                         seat_s, trip_time, trip_y, seat_l if eddy_loss else None)
+        if curved:
+            trip_time, trip_y, st = _seated_trip_held(p, trip, seated, seat_time, seat_y, bound, stiff, rtol,
+                                                      trip_time, trip_y)
+            steps += st
+        else:
+            trip_time, trip_y = _seated_trip(p, trip, seated, seat_time, seat_current, seat_bus, seat_q,
+                                             seat_s, trip_time, trip_y, seat_l if eddy_loss else None)
     dip_time = np.where(seated, impact_time, np.nan)
     dip_current = np.where(seated, dip_current, np.nan)
     hump = np.where(seated, np.maximum(peak[0], dip_current), np.nan)
@@ -379,6 +399,28 @@ def _seated_trip(p: ArmatureParams, trip, seated, seat_time, seat_current, seat_
     return np.where(ok, seat_time + dt, trip_time), np.where(ok, y, trip_y)
 
 
+def _seated_trip_held(p: ArmatureParams, trip, seated, seat_time, seat_y, bound, stiff, rtol: float,
+                      trip_time, trip_y):
+    """:func:`_seated_trip` for a coil with curves on the boost capacitor: the seated coil
+    held on the seat (the flight integrator, ``held``) from the seat's state ``seat_y``
+    until its flux reaches the seated curve's at ``trip`` A (the current at the seat is
+    ``i_c(psi)``: the flux is the event), within ``bound`` s from switch-on plus the
+    capacitor loop's own time scale; ``inf`` where never. Returns ``(trip_time, trip_y,
+    steps)``."""
+    n = len(p)
+    steps = np.zeros(n, int)
+    if not seated.any():
+        return trip_time, trip_y, steps
+    t0 = np.where(seated, seat_time, 0.0)
+    y0 = np.where(seated, seat_y, 0.0)
+    y0[1], y0[2] = 0.0, 0.0
+    end = t0 + np.where(np.isfinite(bound), bound, 0.0) + BOUND_FACTOR * bus_time_scale(p)
+    ones = np.ones(n, bool)
+    fl = fly_mixed(p, t0, y0, end, seated, ones, ones, stiff, rtol, held=ones, flux_to=p.flux_closed(trip))
+    ok = seated & (fl.end == START)
+    return (np.where(ok, fl.t, trip_time), np.where(ok, fl.y, trip_y), np.where(seated, fl.steps, 0))
+
+
 def _rise_to(p: ArmatureParams, open_: bool, trip, i0, u0, eddy_loss: bool = False):
     """``(s, state)``: the armature resting on the open stop (``open_``) or the seat, the
     switch on from the magnetising current ``i0`` A (and on a drooping bus the capacitor at
@@ -411,25 +453,26 @@ def _rise_to(p: ArmatureParams, open_: bool, trip, i0, u0, eddy_loss: bool = Fal
     return t, np.stack([flux, x, np.zeros(n), q, s] + extra)
 
 
-def _held_rise(p: ArmatureParams, i_inf, stiff, rtol, want, query_y, low, low_until):
+def _held_rise(p: ArmatureParams, i_inf, stiff, rtol, want, query_y, low, low_until, flux_to=None):
     """A coil with curves on a drooping bus, switched on at t = 0 with the armature held on
     the open stop (the flight integrator, ``held``) until the flux reaches the start
-    current's: ``(t_start s (inf: never within the bound), int i dt A*s, int i^2 dt A^2*s,
-    the bus V then, steps)``; the state at ``want`` s goes into ``query_y``, the lowest
+    current's (or ``flux_to`` Wb): ``(t_start s (inf: never within the bound), int i dt A*s,
+    int i^2 dt A^2*s, the bus V then, steps, the state then)``; the state at ``want`` s goes into ``query_y``, the lowest
     bus into ``low``. The bound: :data:`BOUND_FACTOR` times the slower of the open coil's
     time constant (its small-signal or its secant inductance at the steady current
     ``i_inf`` A, over ``R_on + R_s``) and ``R_s C``."""
     n = len(p)
     l_secant = p.flux_open(i_inf) / i_inf
     tau = np.maximum(p.l_open, l_secant) / (p.r_on + p.source_resistance)
-    bound = BOUND_FACTOR * (tau + p.source_resistance * p.capacitance)
+    bound = BOUND_FACTOR * (tau + bus_time_scale(p))   # (a boost capacitor: its loop's scale)
     y0 = np.stack([np.zeros(n), p.stroke.astype(float), np.zeros(n), np.zeros(n), np.zeros(n),
                    p.v_on.astype(float)])
     ones = np.ones(n, bool)
     fl = fly_mixed(p, np.zeros(n), y0, bound, ones, ones, ones, stiff, rtol, query=want, query_y=query_y,
-                   low=low, low_until=low_until, held=ones, flux_to=p.flux_open(p.start_current))
+                   low=low, low_until=low_until, held=ones,
+                   flux_to=p.flux_open(p.start_current) if flux_to is None else flux_to)
     t_start = np.where(fl.end == START, fl.t, np.inf)
-    return t_start, fl.y[3], fl.y[4], fl.y[5], fl.steps
+    return t_start, fl.y[3], fl.y[4], fl.y[5], fl.steps, fl.y
 
 
 def _droop_peak_end(p: ArmatureParams, want, t_start, moves, seated, seat_time, seat_current,
