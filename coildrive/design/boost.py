@@ -106,7 +106,9 @@ def firmware_peak(design, supply: float, coil_temp: float, r_factor: float = 1.0
                   l_factor: float = 1.0) -> float:
     """The boosted peak the firmware runs at one point (s): until a nominal sense chain
     reads the threshold code, from the boost at its nominal voltage and capacitance, or the
-    time-out if sooner (a moving armature: its run, :mod:`coildrive.design.boost_armature`)."""
+    time-out if sooner (a moving armature: its run with the coil's eddy term, the trip on
+    the terminal current the sense resistor carries, as the design's runs in
+    :mod:`coildrive.design.boost_armature`)."""
     drive = design.drive
     s = drive.supply
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
@@ -117,19 +119,19 @@ def firmware_peak(design, supply: float, coil_temp: float, r_factor: float = 1.0
     return min(t, design.pull_in.peak_time_s or 0.0)
 
 
-def armature_trip_time(drive: Drive, lp, l_factor: float, trip: float, eddy: bool = False) -> float:
+def armature_trip_time(drive: Drive, lp, l_factor: float, trip: float) -> float:
     """s from switch-on until the coil's current first reaches ``trip`` A with the moving
     armature, from the boost at its nominal charge and capacitance, at the one point of
-    ``lp`` (``inf`` never; ``eddy``: with the coil's eddy term, the trip on the terminal
-    current the sense reads -- the latch's set pulse; :func:`firmware_peak` runs the coil
-    without it): :func:`coildrive.model.armature_runs.pull_in` with the boost as
+    ``lp`` (``inf`` never; with the coil's eddy term, the terminal current the sense
+    resistor carries, which leads the magnetising current -- the firmware's peak and a
+    latch's set pulse): :func:`coildrive.model.armature_runs.pull_in` with the boost as
     its source (:func:`coildrive.model.armature_boost.boost_params`)."""
     from ..model.armature import params_from_loop
     from ..model.armature_boost import boost_params
     from ..model.armature_runs import pull_in
 
     s = drive.supply
-    pb = boost_params(params_from_loop(drive.armature, lp, l_factor, drive.coil.eddy_resistance if eddy else 0.0),
+    pb = boost_params(params_from_loop(drive.armature, lp, l_factor, drive.coil.eddy_resistance),
                       s.boost, s.boost_capacitance, s.boost_resistance)
     return float(pull_in(pb, trip=trip).trip_time[0])
 

@@ -421,7 +421,7 @@ def _threshold_tick(wd: Drive, b: BoostResult, supply: float, coil_temp: float, 
     m = model.of(bb)
     trip = boost.nominal_trip(wd, b.threshold_code)
     t = (float(m.threshold_time(trip, bb, sensed=True)) if wd.armature is None
-         else boost.armature_trip_time(wd, lp, l_factor, trip, eddy=True))
+         else boost.armature_trip_time(wd, lp, l_factor, trip))
     rate = wd.board.tick.rate
     # the driver compares at each tick after the pulse's first: at the first at or after the crossing
     t = max(math.ceil(t * rate - 1e-9), 1) / rate if math.isfinite(t) else t
