@@ -566,7 +566,8 @@ def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bott
     most at ``max(I, B)`` (``B`` the orbit's start) and rises within two periods (the first
     may start late) by at most ``(V/R - c)(1 - exp(-2 T R/L))``: ``coil_top_a`` is the
     larger of that from ``I_end`` and the hold's top; under a current-mode hold the tail's
-    value at the end, the hold's top plus ``I_end`` less the bottom. The boost
+    value at the end, the hold's top plus ``I_end`` less the bottom (a linear coil's rise
+    over the comparator's delay only shrinks as its current grows). The boost
     converter draws its output over ``supply.boost_efficiency`` from the rail at its lowest
     (``[supply] min`` less the reading's droop, ``reading_droop_v``): with a capacitor a
     constant ``boost_power`` from switch-on until the energy one peak takes is back
@@ -591,11 +592,16 @@ def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bott
     ``boost_rise_current_a``, :func:`~coildrive.model.flux_bound.rise_table`), and under a
     voltage-mode hold the period map on the flux is increasing and contracting too, each
     period adding at most ``V T / s``: ``coil_top_a`` the larger of the hold's top and
-    ``psi^-1(psi(I_end) + 2 V T / s)``. With an eddy term on the curve both on the
-    magnetising flux through the Thevenin pair (``V_th = V R_e/(R + R_e)``, ``R_th``), the
-    terminal current ``(V + R_e i_m)/(R + R_e)`` on it; under a current-mode hold the
-    flux after the hand-over rises by at most ``V_th delay / s`` before the comparator
-    turns the switch off, later on-times ending at the hold's top.
+    ``psi^-1(psi(I_end) + 2 V T / s)``. Under a current-mode hold the comparator turns the
+    switch off within its delay of a reading above the threshold, so after the hand-over
+    the flux rises by at most ``V delay / s`` from ``I_end`` and later on-times end at most
+    at the hold's top: ``coil_top_a`` is the larger of the hold's top and ``psi^-1(psi(I_end)
+    + V delay / s)``. Not the linear coil's top plus ``I_end`` less the bottom: past a knee
+    ``L_d(I_end)`` is far below ``L_d`` at the threshold and the delay's rise from ``I_end``
+    outgrows the hold's (tests/test_system_boost.py, scipy ``solve_ivp``: 8 mA above that
+    on a hard knee). With an eddy term on the curve both on the magnetising flux through
+    the Thevenin pair (``V_th = V R_e/(R + R_e)``, ``R_th``), the terminal current ``(V +
+    R_e i_m)/(R + R_e)`` on it.
 
     With a moving armature (a linear coil, ``l_min`` its lowest seated inductance) that may
     still fly in the hold (``flight = L_c/L_open > 1``, :func:`_hold_flight`) the PWM's
@@ -610,15 +616,19 @@ def _boost_keys(d, v_hi: float, r_on: float, l_min: float, hold_top: float, bott
     v_low = max(s.min - reading_droop_v, 1e-3)
     i_end = bst.end_current_max_a
     period = 1.0 / d.hold.frequency_hz
-    if d.hold.mode == "current" and curve is not None and r_eddy is not None:
+    if d.hold.mode == "current" and curve is not None:
         # the comparator turns the switch off within the delay of a reading above its
-        # threshold: after the hand-over the magnetising flux rises by at most V_th delay / s
-        # from I_end, then the on-times end at most at the hold's top
+        # threshold: after the hand-over the (magnetising) flux rises by at most V delay / s
+        # (V_th with an eddy term) from I_end, then the on-times end at most at the hold's
+        # top. (Not the linear coil's top plus I_end less the bottom: the curve's rise over
+        # the delay grows as L_d falls, tests/test_system_boost.py.)
         c = curve.curve
-        v_th = v_hi * r_eddy / (r_on + r_eddy)
+        v_th = v_hi if r_eddy is None else v_hi * r_eddy / (r_on + r_eddy)
         reach = float(np.asarray(c.current_of(float(c.psi(i_end)) + v_th * d.hold.thresholds.delay_s
                                                / float(curve.scale))).ravel()[0])
-        coil_top = max(hold_top, reach, (v_hi + r_eddy * reach) / (r_on + r_eddy))
+        coil_top = max(hold_top, reach)
+        if r_eddy is not None:      # the terminal current on it
+            coil_top = max(coil_top, (v_hi + r_eddy * reach) / (r_on + r_eddy))
     elif d.hold.mode == "current":
         coil_top = hold_top + max(0.0, i_end - bottom)
     elif curve is not None and r_eddy is not None:
