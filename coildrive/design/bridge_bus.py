@@ -43,7 +43,12 @@ def _coil_top(res, peak_end) -> np.ndarray:
     ends below ``V_s/R`` rises on past its end; a closed loop's at its preload; a
     current-mode hold, ``None``, stays off until the current falls into its band) and the
     hold's top (every later on-time lies under the first one's or the orbit's, the
-    argument of :func:`coildrive.design.supply._first_on_top`)."""
+    argument of :func:`coildrive.design.supply._first_on_top`). A mixed-decay hold on the
+    drooping bus is outside that argument (its on-times may see a bus above ``V_s``, its
+    fast parts one below): there the stiff figures are checked against solve_ivp of the
+    circuit instead (tests/test_bridge_mixed_droop_top.py, docs/design-method.md: the
+    fast parts return less charge than the on-times draw, so the bus sits below the source
+    on average)."""
     end = np.broadcast_to(np.asarray(peak_end, float), res.loop.v_on.shape)
     end = np.where(np.isfinite(end), end, 0.0)
     top = np.maximum(end, np.where(np.isfinite(res.hold.i_max), res.hold.i_max, 0.0))
