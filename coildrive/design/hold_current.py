@@ -983,9 +983,11 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
         fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") \
             if two_paths(drive) else None
         lead = drive.freewheel.bypass_lead if split_decay(drive) else 0.0
+        t_fast = 0.0 if lp.mixed is None else \
+            th.off_time_s if th.control == "hysteretic" else lp.mixed.fraction * th.off_time_s
         pieces, last_on = threshold_actuation(drive, lp, peak_time, hold_time, points, th.control,
                                               th.lower_a, th.upper_a, th.off_time_s, th.delay_s,
-                                              fast, lead)
+                                              fast, lead, t_fast)
         return boost_columns(drive, eddy_waveform(drive, lp, supply, pieces, peak_time, label, fast, lead,
                                                   last_on),
                              supply, peak_time, float(np.ravel(lp.r_on)[0]), lp.inductance[...])
