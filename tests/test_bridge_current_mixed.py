@@ -298,16 +298,15 @@ def test_virtual_device_runs_it_and_check_passes(mixed, tmp_path):
     device_checks(design(mixed[0]), tmp_path)
 
 
-@pytest.mark.parametrize("what", ["curve", "droop", "armature"])
+@pytest.mark.parametrize("what", ["curve", "armature"])
 def test_what_current_mode_mixed_decay_refuses_is_one_line(tmp_path, what):
-    """A curve, the drooping bus, an [armature]: one line naming the key (an eddy term is
-    designed: tests/test_bridge_current_mixed_eddy.py)."""
+    """A curve, an [armature]: one line naming the key (an eddy term and the drooping bus
+    are designed: tests/test_bridge_current_mixed_eddy.py, test_bridge_current_mixed_droop.py)."""
     from test_bridge_armature import ARMATURE
     from test_flux_bridge import CURVE
 
     edit, fragment = {
         "curve": (('inductance = "70 mH"\n', "flux_current" + CURVE), "flux-linkage curve"),
-        "droop": (("[supply]\n", '[supply]\nsource_resistance = "0.5 ohm"\n'), "drooping bus"),
         "armature": (("[ambient]\n", ARMATURE + "\n[ambient]\n"), "[armature]")}[what]
     path = _variant(tmp_path, (HOLD, HOLD + "fast_fraction = 0.3\n"), edit)
     with pytest.raises(InputError) as err:

@@ -360,6 +360,8 @@ def evaluate_current(drive: Drive, th: Thresholds, supply, ambient, r_factor, l_
         lp = loop(drive, supply, temp, r_factor, l_factor)
         cm = steady_state(drive, lp, lower, th.upper_a, th.off_time_s, th.delay_s)
     ss = cm.as_pwm()
+    if lp.mixed is not None and drive.supply.droops and drive.supply.sink:
+        ss = dataclasses.replace(ss, fast_pulse=fast_pulses(drive, th, lp, cm))
     # the peak on the drooping bus where [supply] source_resistance is given (the hold's
     # regulation takes the bus's droop out of the hold)
     t_pull = bus_rise_time(drive, lp, drive.pull_in.current, lp.inductance)
@@ -389,6 +391,37 @@ def evaluate_current(drive: Drive, th: Thresholds, supply, ambient, r_factor, l_
                        release_energy=energy, interrupt_current=interrupt,
                        peak_switch_voltage=v_sw, armature=arm, release_loop=lp_rel)
     return res, cm
+
+
+def fast_pulses(drive: Drive, th: Thresholds, lp, cm: CurrentModeSteadyState) -> tuple:
+    """A full bridge's current-mode mixed decay on a drooping bus that sinks (a linear
+    coil): ``(t_fast, T)`` per point, each period's fast part at most ``t_fast`` s and the
+    periods at least ``T`` s long whatever the bus does, for
+    :func:`coildrive.model.bus_decay.mixed_hold_rise` (its bound grows with ``t_fast`` and
+    shrinks with ``T``). The bus never rises more than ``R_s i_top`` over the source (``C
+    du/dt = -u / R_s + j`` with ``j <= i_top``), so every on-time is at least the rise at
+    ``V_hi = V_s + R_s i_top`` from the highest bottom: hysteretic, from the lower threshold
+    (the off-time ends at or below it) to the upper, and ``T`` that plus the one-shot
+    (``t_fast``, cut short where the lower threshold comes first: a shorter pulse in a
+    shorter period bounds less); the fixed off-time, from the decay with nothing opposing
+    through the whole off-time (the bus stays above ``-2 V_d``: ``V_f >= 0``), and ``T``
+    that plus ``t_off``, ``t_fast = fast_fraction x t_off``. Where the threshold is out of
+    reach (no switching) no fast part."""
+    s, m = drive.supply, lp.mixed
+    top = np.asarray(cm.i_max, float)
+    v_hi = np.asarray(lp.v_on, float) + s.source_resistance * top
+    ind = np.asarray(lp.inductance, float)
+    if th.control == "hysteretic":
+        t_fast = th.off_time_s
+        t_on = rise_time(th.upper_a, th.lower_a, v_hi, lp.r_on, ind)
+        period = t_on + t_fast
+    else:
+        t_fast = m.fraction * th.off_time_s
+        bottom = top * np.exp(-(t_fast * np.asarray(m.r_fast, float) + (th.off_time_s - t_fast)
+                                * np.asarray(lp.r_off, float)) / ind)
+        period = rise_time(th.upper_a, np.minimum(bottom, th.upper_a), v_hi, lp.r_on, ind) + th.off_time_s
+    reg = np.asarray(cm.regulated, bool)
+    return np.where(reg, t_fast, 0.0), np.where(reg, period, 1.0)
 
 
 def current_losses(drive: Drive, res: PointResults, cm: CurrentModeSteadyState) -> HoldLosses:

@@ -118,7 +118,9 @@ class CurrentModeSteadyState:
     ``i_min``/``i_max`` are the bottom and top of the ripple (the thresholds moved by
     the delay); ``t_on``/``t_off`` the switch on and off times, ``conduction_off`` the
     part of ``t_off`` with current flowing; ``dcm`` marks a current that dies out
-    during the off time.
+    during the off time. A full bridge's mixed decay: ``fast_time`` the time of each
+    period with all four switches open (s: the fast part, cut short where the off-time
+    ends in it), ``charge_fast``/``square_fast`` its current's integrals.
     """
 
     i_min: np.ndarray
@@ -145,6 +147,7 @@ class CurrentModeSteadyState:
     magnetising_rms: np.ndarray | None = None
     charge_fast: np.ndarray | float = 0.0
     square_fast: np.ndarray | float = 0.0
+    fast_time: np.ndarray | None = None
 
     def as_pwm(self) -> PwmSteadyState:
         """The same steady state in the voltage-mode container (same field meanings), so
@@ -155,7 +158,8 @@ class CurrentModeSteadyState:
                               charge_off=self.charge_off, square_off=self.square_off,
                               terminal_min=self.terminal_min, terminal_max=self.terminal_max,
                               eddy_energy=self.eddy_energy, magnetising_rms=self.magnetising_rms,
-                              charge_fast=self.charge_fast, square_fast=self.square_fast)
+                              charge_fast=self.charge_fast, square_fast=self.square_fast,
+                              fast_time=self.fast_time)
 
 
 def _unregulated(bottom, top, t_on, t_off, conduction, a, regulated):
@@ -341,7 +345,8 @@ def _mixed_orbit(control, i_lo, level, t_off, v_on, r_on, r_off, inductance, del
     q_on, s_on = rise_integrals(t_on, bottom, v_on, r_on, ind)
     q_f, s_f, q_s, s_s = (np.where(regulated, x, 0.0) for x in (q_f, s_f, q_s, s_s))
     return _state(bottom, top, t_on, t_off, conduction, q_on, s_on, q_f + q_s, s_f + s_s, regulated,
-                  charge_fast=q_f, square_fast=s_f)
+                  charge_fast=q_f, square_fast=s_f,
+                  fast_time=np.where(regulated, np.minimum(path.t_fast, t_off), 0.0))
 
 
 # ------------------------------------------------------------------- an eddy-current term
@@ -400,7 +405,7 @@ def _eddy_mixed_orbit(control, i_lo, level, t_off, v_on, r_on, r_s, e: EddyCoil,
     t_max, t_min = np.where(regulated, t_max, a), np.where(regulated, t_min, a)
     st = _state(bottom, top, t_on, t_off, conduction, q_on, s_on, q_f + q_s, s_f + s_s, regulated,
                 charge_fast=q_f, square_fast=s_f, terminal_min=t_min, terminal_max=t_max, eddy_energy=w,
-                chatter=chatter)
+                chatter=chatter, fast_time=np.where(regulated, t_f, 0.0))
     return dataclasses.replace(st, ripple=t_max - t_min, dcm=regulated & (blocked > 0.5),
                                magnetising_rms=np.sqrt(np.maximum(sm / st.period, 0.0)))
 
