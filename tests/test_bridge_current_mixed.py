@@ -298,22 +298,27 @@ def test_virtual_device_runs_it_and_check_passes(mixed, tmp_path):
     device_checks(design(mixed[0]), tmp_path)
 
 
-@pytest.mark.parametrize("what", ["curve", "armature"])
+@pytest.mark.parametrize("what", ["curve-eddy", "curve-droop", "armature"])
 def test_what_current_mode_mixed_decay_refuses_is_one_line(tmp_path, what):
-    """A curve, an [armature]: one line naming the key (an eddy term and the drooping bus
-    are designed: tests/test_bridge_current_mixed_eddy.py, test_bridge_current_mixed_droop.py)."""
+    """A curve with an eddy term, a curve on the drooping bus, an [armature]: one line naming
+    the key (an eddy term, the drooping bus and a curve alone are designed:
+    tests/test_bridge_current_mixed_eddy.py, _droop.py, _curve.py)."""
     from test_bridge_armature import ARMATURE
     from test_flux_bridge import CURVE
 
-    edit, fragment = {
-        "curve": (('inductance = "70 mH"\n', "flux_current" + CURVE), "flux-linkage curve"),
-        "armature": (("[ambient]\n", ARMATURE + "\n[ambient]\n"), "[armature]")}[what]
-    path = _variant(tmp_path, (HOLD, HOLD + "fast_fraction = 0.3\n"), edit)
+    curve = ('inductance = "70 mH"\n', "flux_current" + CURVE)
+    edits, fragment = {
+        "curve-eddy": ((curve, ('resistance = "24 ohm"', 'resistance = "24 ohm"\neddy_resistance = "300 ohm"')),
+                       "flux-linkage curve with an eddy term"),
+        "curve-droop": ((curve, ("[supply]\n", '[supply]\nsource_resistance = "0.5 ohm"\n')),
+                        "on the drooping bus"),
+        "armature": (((("[ambient]\n", ARMATURE + "\n[ambient]\n")),), "[armature]")}[what]
+    path = _variant(tmp_path, (HOLD, HOLD + "fast_fraction = 0.3\n"), *edits)
     with pytest.raises(InputError) as err:
         load_drive(path)
     line = str(err.value)
     assert "\n" not in line and "hold.fast_fraction" in line and fragment in line and str(path) in line
-    if what == "curve":
+    if what == "curve-eddy":
         r = run_cli("design", str(path))
         assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1
 

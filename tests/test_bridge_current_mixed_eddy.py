@@ -25,7 +25,7 @@ import pytest
 
 from coil_span import corner_at
 from conftest import run_cli
-from test_bridge_current import bridge_variant, designed, device_checks
+from test_bridge_current import bridge_variant, compiled_loop_checks, designed, device_checks
 from coildrive.config import load_drive
 from coildrive.design import design
 from coildrive.errors import InputError
@@ -183,6 +183,19 @@ def test_design_against_solve_ivp(eddy_mixed):
                                                             rel=1e-6)
 
 
+def simulated_rises(path, tmp_path):
+    """`coildrive simulate` (a subprocess) of ``path`` at 24 V, 20 degC, a 20 ms hold:
+    ``(columns, time s, switch_on, the switch-on edges s)``."""
+    csv = tmp_path / "w.csv"
+    r = run_cli("simulate", str(path), "--supply", "24", "--coil-temp", "20", "--hold-time", "20 ms",
+                "--points", "4", "--csv", str(csv))
+    assert r.returncode == 0, r.stderr
+    w = np.genfromtxt(csv, delimiter=",", names=True)
+    t, on = w["time_s"], w["switch_on"]
+    rises = t[np.flatnonzero(np.diff(on) == 1) + 1]
+    return w, t, on, rises
+
+
 def test_simulate_settles_on_the_orbit(eddy_mixed, tmp_path):
     """`coildrive simulate` (a subprocess) at 24 V, 20 degC: the settled periods are the
     solve_ivp orbit's (module docstring) to the CSV's resolution; each off-time opens all
@@ -191,13 +204,7 @@ def test_simulate_settles_on_the_orbit(eddy_mixed, tmp_path):
     while the magnetising current runs on; hysteretic at this point the sensed current
     meets the lower threshold inside the one-shot, and the fast part ends there."""
     control, drive, path, d = eddy_mixed
-    csv = tmp_path / "w.csv"
-    r = run_cli("simulate", str(path), "--supply", "24", "--coil-temp", "20", "--hold-time", "20 ms",
-                "--points", "4", "--csv", str(csv))
-    assert r.returncode == 0, r.stderr
-    w = np.genfromtxt(csv, delimiter=",", names=True)
-    t, on = w["time_s"], w["switch_on"]
-    rises = t[np.flatnonzero(np.diff(on) == 1) + 1]
+    w, t, on, rises = simulated_rises(path, tmp_path)
     cm = d["current_mode"]
     c = dict(d["corners"][0], supply_v=24.0, resistance_ohm=drive.coil.resistance,   # 20 degC: R_ref
              inductance_h=drive.coil.inductance)
@@ -235,17 +242,7 @@ def test_compiled_driver_in_the_loop_passes_check(eddy_mixed, tmp_path):
     under hysteretic control can fall part-way up an on-time (a shorter release, here up
     to about 6 %), so it is held to no longer than 2 % over and no shorter than 15 % under.
     Plumbing: the coil model is the design's."""
-    from driver_harness import loop_captures
-    from coildrive.bench.check import check_capture
-
-    d = design(eddy_mixed[1])
-    runs = [(20.0, 130.0, None), (28.0, -10.0, None)]
-    for (_, temp, _), (_, cap) in zip(runs, loop_captures(tmp_path, d, runs, hold_time=0.02)):
-        rep = check_capture(cap, d, coil_temp=temp)
-        rows = {x.name: x for x in rep.items}
-        assert rep.ok, [(x.name, x.status, x.detail) for x in rep.items if x.status == "FAIL"]
-        assert rows["hold_mean"].values[0] == pytest.approx(rep.prediction["hold_mean_a"], rel=2e-3)
-        assert 0.85 <= rows["release_time"].values[0] / rep.prediction["release_time_s"] <= 1.02
+    compiled_loop_checks(design(eddy_mixed[1]), tmp_path, 2e-3, release=(0.85, 1.02))
 
 
 def test_with_the_drooping_bus_it_stays_one_line(tmp_path):

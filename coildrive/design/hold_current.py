@@ -911,7 +911,7 @@ def threshold_hold(th: Thresholds, t: float, i: float, end: float, v: float, r_o
     (``V / R_on`` at or below it) the switch stays on to ``end``.
 
     ``mixed`` (a full bridge's :class:`~coildrive.model.pwm.MixedDecay` at this point, a
-    linear coil): each off-time's first ``mixed.fraction`` (hysteretic: the one-shot's
+    linear coil or a curve): each off-time's first ``mixed.fraction`` (hysteretic: the one-shot's
     ``th.off_time_s``, or to the lower threshold if sooner) decays fast (all four open; a
     sample where the current dies), the rest slowly; ``marks`` then gets,
     per segment appended, a 2-row array: the current flowing in the fast path, all four open."""
@@ -922,9 +922,9 @@ def threshold_hold(th: Thresholds, t: float, i: float, end: float, v: float, r_o
     last_on = []
     seg = None
     if mixed is not None:
-        from ..model.mixed_waveform import LinearSegments
+        from ..model.mixed_waveform import segments_of   # (a curve: its tabulated exact segments)
 
-        seg = LinearSegments(v, r_on, r_off, float(ind), mixed)
+        seg = segments_of(ind, v, r_on, r_off, mixed, max(i, upper))
 
     def mark(n, flowing=None):
         if marks is not None:
@@ -968,7 +968,8 @@ def threshold_hold(th: Thresholds, t: float, i: float, end: float, v: float, r_o
             t_fast = th.off_time_s if hyst else mixed.fraction * th.off_time_s
             dur = th.off_time_s
             if hyst:   # to the lower threshold (+ delay), in the fast part or the slow one
-                dur = float(MixedPath(i, t_fast, seg.r_f, seg.v_f, r_off, float(ind)).time_to(lower)) + d
+                dur = float(MixedPath(i, t_fast, float(mixed.r_fast), float(mixed.v_fast), r_off,
+                                      ind).time_to(lower)) + d
             t, i = fast_seg(t, i, min(t_fast, dur), n)
             if dur > t_fast:
                 t, i = off_seg(t, i, dur - t_fast, n)

@@ -323,11 +323,12 @@ def _mixed_orbit(control, i_lo, level, t_off, v_on, r_on, r_off, inductance, del
     the lower threshold ``i_lo`` A (+ the delay)."""
     if isinstance(inductance, EddyCoil) and not isinstance(inductance.magnetising, FluxCoil):
         return _eddy_mixed_orbit(control, i_lo, level, t_off, v_on, r_on, r_off, inductance, delay, mixed)
-    if isinstance(inductance, (FluxCoil, EddyCoil)):
-        raise ValueError("a current-mode mixed-decay hold is modelled for a linear coil (an eddy term too)")
-    i_lo, level, t_off, v_on, r_on, r_off, delay, ind, r_f, v_f = np.broadcast_arrays(
-        *(np.asarray(x, float) for x in (i_lo, level, t_off, v_on, r_on, r_off, delay, inductance,
-                                         mixed.r_fast, mixed.v_fast)))
+    if isinstance(inductance, EddyCoil):
+        raise ValueError("a current-mode mixed-decay hold is modelled for a linear coil or a curve "
+                         "(an eddy term on a linear branch)")
+    # (a curve: the same segments, each the curve's exact quadrature through coildrive.model.rl)
+    i_lo, level, t_off, v_on, r_on, r_off, delay, r_f, v_f, ind = _broadcast(
+        (i_lo, level, t_off, v_on, r_on, r_off, delay, mixed.r_fast, mixed.v_fast), inductance)
     a = v_on / r_on
     regulated = level < a
     pk = np.where(regulated, level, 0.5 * a)
