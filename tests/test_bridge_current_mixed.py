@@ -376,21 +376,6 @@ def test_compiled_driver_in_the_loop_passes_check(mixed, tmp_path):
     compiled_loop_checks(design(mixed[0]), tmp_path, 2e-3)
 
 
-def test_a_system_files_channel_refuses_it_in_one_line(tmp_path):
-    """Not yet on a system file's shared rail: one line naming the key, exit 2."""
-    from rail_reference import manifold_copy
-    from test_system_bridge import BRIDGE
-
-    path = manifold_copy(tmp_path)
-    purge = tmp_path / "purge-valve-24v.toml"
-    text = purge.read_text().split("[freewheel]")[0]
-    purge.write_text(text.replace("frequency_tolerance = 0.03\n", 'frequency_tolerance = 0.03\nmode = "current"\n'
-                                  'control = "off_time"\nfast_fraction = 0.3\n') + BRIDGE)
-    r = run_cli("design", str(path))
-    assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1, r.stderr
-    assert "hold.fast_fraction" in r.stderr and "system file" in r.stderr
-
-
 @pytest.mark.ngspice
 @pytest.mark.parametrize("inline", [False, True], ids=["common-return", "inline"])
 def test_off_time_mixed_orbit_drives_the_ngspice_bridge_to_its_threshold(tmp_path, inline):
