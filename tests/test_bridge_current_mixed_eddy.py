@@ -20,6 +20,8 @@ The virtual device shares the design's physics: its `check` proves plumbing.
 
 from __future__ import annotations
 
+import json
+
 import numpy as np
 import pytest
 
@@ -255,3 +257,16 @@ def test_with_the_drooping_bus_it_stays_one_line(tmp_path):
     assert "\n" not in line and "hold.fast_fraction" in line and "drooping bus" in line
     r = run_cli("design", str(path))
     assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1 and "Traceback" not in r.stderr
+
+
+def test_a_band_narrower_than_the_fast_paths_step_chatters(tmp_path):
+    """Hysteretic, a 40 mA band with R_e = 300 ohm: the turn-off step into the fast path,
+    ``(V + V_f) / (R + R_e)`` (hand-worked at 20 V: 41.8 V / 324 ohm = 0.13 A), spans the
+    band, so every turn-off trips the lower threshold at once -- the design fails
+    current_mode_step naming V_f (exit 1, no traceback)."""
+    path = _drive(tmp_path, "hysteretic", r_e=300.0)
+    path.write_text(path.read_text().replace("fast_fraction = 0.3\n", 'fast_fraction = 0.3\nband = "40 mA"\n'))
+    r = run_cli("design", str(path), "--json")
+    assert r.returncode == 1, r.stderr
+    (chk,) = [c for c in json.loads(r.stdout)["checks"] if c["name"] == "current_mode_step"]
+    assert chk["ok"] is False and "(V + V_f) / (R + R_e)" in chk["detail"] and "chatters" in chk["detail"]

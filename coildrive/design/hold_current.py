@@ -862,7 +862,7 @@ def _step_check(drive: Drive, th: Thresholds, cm: CurrentModeSteadyState, res: P
                 grid: CornerGrid) -> Check:
     """With an eddy term: the sensed current steps at every switching edge (the flux's
     current is continuous, the eddy resistance's share is not), by ``(V + V_off) / (R +
-    R_e)`` at a turn-off; a hysteretic band must be wider than that step (a peak
+    R_e)`` at a turn-off (a bridge's mixed decay: ``V_f``, the fast path's); a hysteretic band must be wider than that step (a peak
     threshold above the switch-on step ``V / (R + R_e)``) or every edge trips the other
     threshold at once and the switch chatters (docs/coil-model.md)."""
     lp = res.loop
@@ -870,14 +870,17 @@ def _step_check(drive: Drive, th: Thresholds, cm: CurrentModeSteadyState, res: P
     hyst = th.control == "hysteretic"
     # the sensed current's fall at a turn-off at the upper threshold (its rise at a
     # turn-on is the same within the loop resistances' difference)
-    step = np.asarray((lp.v_on + lp.v_off + (lp.r_off - lp.r_on) * th.upper_a) / (lp.r_off + r_e)
+    # (a bridge's mixed decay: a turn-off opens all four, the fast path against V_f first)
+    v_off, r_off, off = (lp.v_off, lp.r_off, "V_off") if lp.mixed is None else \
+        (lp.mixed.v_fast, lp.mixed.r_fast, "V_f")
+    step = np.asarray((lp.v_on + v_off + (r_off - lp.r_on) * th.upper_a) / (r_off + r_e)
                       if hyst else lp.v_on / (lp.r_on + r_e), float) + 0.0 * cm.mean
     k = int(np.argmax(step))
     bad = int(np.sum(cm.chatter))
     ok = bad == 0
     if hyst:
         what = (f"band {th.upper_a - th.lower_a:.4g} A vs the sensed current's step at each edge "
-                f"{step[k]:.4g} A ({grid.label(k)}; eddy term: (V + V_off) / (R + R_e))")
+                f"{step[k]:.4g} A ({grid.label(k)}; eddy term: (V + {off}) / (R + R_e))")
         fix = "widen hold.band, or use control = \"off_time\""
     else:
         what = (f"peak {th.upper_a:.4g} A vs the switch-on step {step[k]:.4g} A ({grid.label(k)}; "
