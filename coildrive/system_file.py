@@ -120,11 +120,6 @@ def load_system(path: str | Path) -> System:
         if not drive_path.is_file():
             raise c.fail("drive", f"{file!r}: no such drive file (relative to the system file's folder)")
         drive = load_drive(drive_path, board_path)
-        if drive.hold.mode == "current" and drive.hold.fast_fraction > 0:
-            raise InputError(drive.source, "hold.fast_fraction", f"{drive.hold.fast_fraction:g} with hold.mode "
-                             f"= \"current\" on channel {name!r} of {source}: a current-mode mixed-decay "
-                             "hold is designed for a drive on its own, not yet on a system file's shared "
-                             "rail; expected 0 or the key left out")
         channels.append(Channel(name, number, drive, offset))
     _check_rails(source, board, channels)
     return System(path.stem, str(board_path), tuple(channels), supply, source)

@@ -304,10 +304,10 @@ def test_compiled_driver_in_the_loop_passes_check(tmp_path, control):
     compiled_loop_checks(_control(tmp_path, control), tmp_path, 1e-3)
 
 
-def compiled_loop_checks(d, tmp_path, mean_rel: float) -> None:
+def compiled_loop_checks(d, tmp_path, mean_rel: float, release=(0.95, 1.05)) -> None:
     """The compiled driver of design ``d`` in the loop (gcc) at 20 V with a 130 degC coil and
     at 28 V with a -10 degC one: `check` passes, the hold mean within ``mean_rel`` of the
-    prediction and the release within 5 %."""
+    prediction and the release between ``release`` x the prediction (default within 5 %)."""
     from driver_harness import loop_captures
     from coildrive.bench.check import check_capture
 
@@ -317,7 +317,7 @@ def compiled_loop_checks(d, tmp_path, mean_rel: float) -> None:
         rows = {x.name: x for x in rep.items}
         assert rep.ok, [(x.name, x.status, x.detail) for x in rep.items if x.status == "FAIL"]
         assert rows["hold_mean"].values[0] == pytest.approx(rep.prediction["hold_mean_a"], rel=mean_rel)
-        assert rows["release_time"].values[0] == pytest.approx(rep.prediction["release_time_s"], rel=0.05)
+        assert release[0] <= rows["release_time"].values[0] / rep.prediction["release_time_s"] <= release[1]
 
 
 def _hysteretic_deck(text: str, lo: float, hi: float, t_rel: float, psi0=None) -> str:

@@ -298,23 +298,27 @@ def test_virtual_device_runs_it_and_check_passes(mixed, tmp_path):
     device_checks(design(mixed[0]), tmp_path)
 
 
-@pytest.mark.parametrize("what", ["curve", "eddy", "droop", "armature"])
+@pytest.mark.parametrize("what", ["curve-eddy", "curve-droop", "armature"])
 def test_what_current_mode_mixed_decay_refuses_is_one_line(tmp_path, what):
-    """A curve, an eddy term, the drooping bus, an [armature]: one line naming the key."""
+    """A curve with an eddy term, a curve on the drooping bus, an [armature]: one line naming
+    the key (an eddy term, the drooping bus and a curve alone are designed:
+    tests/test_bridge_current_mixed_eddy.py, _droop.py, _curve.py)."""
     from test_bridge_armature import ARMATURE
     from test_flux_bridge import CURVE
 
-    edit, fragment = {
-        "curve": (('inductance = "70 mH"\n', "flux_current" + CURVE), "flux-linkage curve"),
-        "eddy": (('inductance = "70 mH"\n', 'inductance = "70 mH"\neddy_resistance = "300 ohm"\n'), "eddy term"),
-        "droop": (("[supply]\n", '[supply]\nsource_resistance = "0.5 ohm"\n'), "drooping bus"),
-        "armature": (("[ambient]\n", ARMATURE + "\n[ambient]\n"), "[armature]")}[what]
-    path = _variant(tmp_path, (HOLD, HOLD + "fast_fraction = 0.3\n"), edit)
+    curve = ('inductance = "70 mH"\n', "flux_current" + CURVE)
+    edits, fragment = {
+        "curve-eddy": ((curve, ('resistance = "24 ohm"', 'resistance = "24 ohm"\neddy_resistance = "300 ohm"')),
+                       "flux-linkage curve with an eddy term"),
+        "curve-droop": ((curve, ("[supply]\n", '[supply]\nsource_resistance = "0.5 ohm"\n')),
+                        "on the drooping bus"),
+        "armature": (((("[ambient]\n", ARMATURE + "\n[ambient]\n")),), "[armature]")}[what]
+    path = _variant(tmp_path, (HOLD, HOLD + "fast_fraction = 0.3\n"), *edits)
     with pytest.raises(InputError) as err:
         load_drive(path)
     line = str(err.value)
     assert "\n" not in line and "hold.fast_fraction" in line and fragment in line and str(path) in line
-    if what == "curve":
+    if what == "curve-eddy":
         r = run_cli("design", str(path))
         assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1
 
@@ -370,21 +374,6 @@ def test_compiled_driver_in_the_loop_passes_check(mixed, tmp_path):
     (the fast part whole counts: the model takes fast_fraction x t_off) and the release
     within 5 % (plumbing: the model is the design's)."""
     compiled_loop_checks(design(mixed[0]), tmp_path, 2e-3)
-
-
-def test_a_system_files_channel_refuses_it_in_one_line(tmp_path):
-    """Not yet on a system file's shared rail: one line naming the key, exit 2."""
-    from rail_reference import manifold_copy
-    from test_system_bridge import BRIDGE
-
-    path = manifold_copy(tmp_path)
-    purge = tmp_path / "purge-valve-24v.toml"
-    text = purge.read_text().split("[freewheel]")[0]
-    purge.write_text(text.replace("frequency_tolerance = 0.03\n", 'frequency_tolerance = 0.03\nmode = "current"\n'
-                                  'control = "off_time"\nfast_fraction = 0.3\n') + BRIDGE)
-    r = run_cli("design", str(path))
-    assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1, r.stderr
-    assert "hold.fast_fraction" in r.stderr and "system file" in r.stderr
 
 
 @pytest.mark.ngspice

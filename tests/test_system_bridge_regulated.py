@@ -53,11 +53,10 @@ def doc(request, tmp_path_factory):
     return json.loads(r.stdout)["system"], path.parent
 
 
-def _simulate(drv, d, v, r_f, l_f, reading, n=30):
-    """The bridge written afresh (module docstring) at ``v`` V, cold: the firmware's peak,
-    then its hold -- current mode: 60 comparator cycles; closed loop: 120 periods at the
-    clamp's duty -- then the release's fast decay to zero. Returns the time (s), the coil
-    current (A) and the rail's current (A)."""
+def bridge_rhs(drv, v, r_f, l_f):
+    """``rhs(t, y, mode)`` of the bridge's three loops written afresh (module docstring) at
+    ``v`` V, the coil cold with its R and L scaled by ``r_f`` and ``l_f``: ``mode`` ON, SLOW
+    or FAST."""
     c, b = drv.coil, drv.board
     r_coil = c.resistance * (1 + 0.00393 * (drv.ambient.min - c.reference_temp)) * r_f      # IEC 60028
     sw, rs, ind = drv.switch.on_resistance, b.sense.resistance, c.inductance * l_f
@@ -66,8 +65,16 @@ def _simulate(drv, d, v, r_f, l_f, reading, n=30):
     def rhs(_t, y, mode):
         return [(v - r_bridge * y[0] if mode == ON else -r_bridge * y[0] if mode == SLOW
                  else -(r_fast * y[0] + v_fast)) / ind]
+    return rhs
 
-    peak = d["pull_in"]["peak_ticks"] / b.tick.rate
+
+def _simulate(drv, d, v, r_f, l_f, reading, n=30):
+    """The bridge written afresh (module docstring) at ``v`` V, cold: the firmware's peak,
+    then its hold -- current mode: 60 comparator cycles; closed loop: 120 periods at the
+    clamp's duty -- then the release's fast decay to zero. Returns the time (s), the coil
+    current (A) and the rail's current (A)."""
+    rhs = bridge_rhs(drv, v, r_f, l_f)
+    peak = d["pull_in"]["peak_ticks"] / drv.board.tick.rate
     if d["hold"]["regulation"] == "current":
         *_, (t1, i1, run) = comparator_run(rhs, lambda _on, x: x, d["current_mode"], reading, peak, 60, n=n)
     else:

@@ -121,9 +121,13 @@ def bus_range(drive: Drive, res, peak_time, peak_end) -> tuple[np.ndarray, np.nd
         # every fast part of the hold returns current: the bus may sit above the source
         # (one that cannot sink: the starts stay at or below it, see no_sink_top)
         period = np.asarray(res.hold.period, float)
+        # (a PWM hold's fast part at most fraction x its fixed period; a current-mode hold's
+        # period moves with the bus: its longest fast part and shortest period there)
+        t_fast = lp.mixed.fraction * period
+        if res.hold.fast_pulse is not None:
+            t_fast, period = res.hold.fast_pulse
         high = high + bus_decay.mixed_hold_rise(s.source_resistance, s.capacitance,
-                                                _returned_top(drive, res, peak_end),
-                                                lp.mixed.fraction * period, period)
+                                                _returned_top(drive, res, peak_end), t_fast, period)
     return np.maximum(np.minimum(v_peak, floor), clamp), high
 
 

@@ -360,6 +360,8 @@ def evaluate_current(drive: Drive, th: Thresholds, supply, ambient, r_factor, l_
         lp = loop(drive, supply, temp, r_factor, l_factor)
         cm = steady_state(drive, lp, lower, th.upper_a, th.off_time_s, th.delay_s)
     ss = cm.as_pwm()
+    if lp.mixed is not None and drive.supply.droops and drive.supply.sink:
+        ss = dataclasses.replace(ss, fast_pulse=fast_pulses(drive, th, lp, cm))
     # the peak on the drooping bus where [supply] source_resistance is given (the hold's
     # regulation takes the bus's droop out of the hold)
     t_pull = bus_rise_time(drive, lp, drive.pull_in.current, lp.inductance)
@@ -389,6 +391,37 @@ def evaluate_current(drive: Drive, th: Thresholds, supply, ambient, r_factor, l_
                        release_energy=energy, interrupt_current=interrupt,
                        peak_switch_voltage=v_sw, armature=arm, release_loop=lp_rel)
     return res, cm
+
+
+def fast_pulses(drive: Drive, th: Thresholds, lp, cm: CurrentModeSteadyState) -> tuple:
+    """A full bridge's current-mode mixed decay on a drooping bus that sinks (a linear
+    coil): ``(t_fast, T)`` per point, each period's fast part at most ``t_fast`` s and the
+    periods at least ``T`` s long whatever the bus does, for
+    :func:`coildrive.model.bus_decay.mixed_hold_rise` (its bound grows with ``t_fast`` and
+    shrinks with ``T``). The bus never rises more than ``R_s i_top`` over the source (``C
+    du/dt = -u / R_s + j`` with ``j <= i_top``), so every on-time is at least the rise at
+    ``V_hi = V_s + R_s i_top`` from the highest bottom: hysteretic, from the lower threshold
+    (the off-time ends at or below it) to the upper, and ``T`` that plus the one-shot
+    (``t_fast``, cut short where the lower threshold comes first: a shorter pulse in a
+    shorter period bounds less); the fixed off-time, from the decay with nothing opposing
+    through the whole off-time (the bus stays above ``-2 V_d``: ``V_f >= 0``), and ``T``
+    that plus ``t_off``, ``t_fast = fast_fraction x t_off``. Where the threshold is out of
+    reach (no switching) no fast part."""
+    s, m = drive.supply, lp.mixed
+    top = np.asarray(cm.i_max, float)
+    v_hi = np.asarray(lp.v_on, float) + s.source_resistance * top
+    ind = np.asarray(lp.inductance, float)
+    if th.control == "hysteretic":
+        t_fast = th.off_time_s
+        t_on = rise_time(th.upper_a, th.lower_a, v_hi, lp.r_on, ind)
+        period = t_on + t_fast
+    else:
+        t_fast = m.fraction * th.off_time_s
+        bottom = top * np.exp(-(t_fast * np.asarray(m.r_fast, float) + (th.off_time_s - t_fast)
+                                * np.asarray(lp.r_off, float)) / ind)
+        period = rise_time(th.upper_a, np.minimum(bottom, th.upper_a), v_hi, lp.r_on, ind) + th.off_time_s
+    reg = np.asarray(cm.regulated, bool)
+    return np.where(reg, t_fast, 0.0), np.where(reg, period, 1.0)
 
 
 def current_losses(drive: Drive, res: PointResults, cm: CurrentModeSteadyState) -> HoldLosses:
@@ -828,7 +861,7 @@ def _step_check(drive: Drive, th: Thresholds, cm: CurrentModeSteadyState, res: P
                 grid: CornerGrid) -> Check:
     """With an eddy term: the sensed current steps at every switching edge (the flux's
     current is continuous, the eddy resistance's share is not), by ``(V + V_off) / (R +
-    R_e)`` at a turn-off; a hysteretic band must be wider than that step (a peak
+    R_e)`` at a turn-off (a bridge's mixed decay: ``V_f``, the fast path's); a hysteretic band must be wider than that step (a peak
     threshold above the switch-on step ``V / (R + R_e)``) or every edge trips the other
     threshold at once and the switch chatters (docs/coil-model.md)."""
     lp = res.loop
@@ -836,14 +869,17 @@ def _step_check(drive: Drive, th: Thresholds, cm: CurrentModeSteadyState, res: P
     hyst = th.control == "hysteretic"
     # the sensed current's fall at a turn-off at the upper threshold (its rise at a
     # turn-on is the same within the loop resistances' difference)
-    step = np.asarray((lp.v_on + lp.v_off + (lp.r_off - lp.r_on) * th.upper_a) / (lp.r_off + r_e)
+    # (a bridge's mixed decay: a turn-off opens all four, the fast path against V_f first)
+    v_off, r_off, off = (lp.v_off, lp.r_off, "V_off") if lp.mixed is None else \
+        (lp.mixed.v_fast, lp.mixed.r_fast, "V_f")
+    step = np.asarray((lp.v_on + v_off + (r_off - lp.r_on) * th.upper_a) / (r_off + r_e)
                       if hyst else lp.v_on / (lp.r_on + r_e), float) + 0.0 * cm.mean
     k = int(np.argmax(step))
     bad = int(np.sum(cm.chatter))
     ok = bad == 0
     if hyst:
         what = (f"band {th.upper_a - th.lower_a:.4g} A vs the sensed current's step at each edge "
-                f"{step[k]:.4g} A ({grid.label(k)}; eddy term: (V + V_off) / (R + R_e))")
+                f"{step[k]:.4g} A ({grid.label(k)}; eddy term: (V + {off}) / (R + R_e))")
         fix = "widen hold.band, or use control = \"off_time\""
     else:
         what = (f"peak {th.upper_a:.4g} A vs the switch-on step {step[k]:.4g} A ({grid.label(k)}; "
@@ -877,7 +913,7 @@ def threshold_hold(th: Thresholds, t: float, i: float, end: float, v: float, r_o
     (``V / R_on`` at or below it) the switch stays on to ``end``.
 
     ``mixed`` (a full bridge's :class:`~coildrive.model.pwm.MixedDecay` at this point, a
-    linear coil): each off-time's first ``mixed.fraction`` (hysteretic: the one-shot's
+    linear coil or a curve): each off-time's first ``mixed.fraction`` (hysteretic: the one-shot's
     ``th.off_time_s``, or to the lower threshold if sooner) decays fast (all four open; a
     sample where the current dies), the rest slowly; ``marks`` then gets,
     per segment appended, a 2-row array: the current flowing in the fast path, all four open."""
@@ -888,9 +924,9 @@ def threshold_hold(th: Thresholds, t: float, i: float, end: float, v: float, r_o
     last_on = []
     seg = None
     if mixed is not None:
-        from ..model.mixed_waveform import LinearSegments
+        from ..model.mixed_waveform import segments_of   # (a curve: its tabulated exact segments)
 
-        seg = LinearSegments(v, r_on, r_off, float(ind), mixed)
+        seg = segments_of(ind, v, r_on, r_off, mixed, max(i, upper))
 
     def mark(n, flowing=None):
         if marks is not None:
@@ -934,7 +970,8 @@ def threshold_hold(th: Thresholds, t: float, i: float, end: float, v: float, r_o
             t_fast = th.off_time_s if hyst else mixed.fraction * th.off_time_s
             dur = th.off_time_s
             if hyst:   # to the lower threshold (+ delay), in the fast part or the slow one
-                dur = float(MixedPath(i, t_fast, seg.r_f, seg.v_f, r_off, float(ind)).time_to(lower)) + d
+                dur = float(MixedPath(i, t_fast, float(mixed.r_fast), float(mixed.v_fast), r_off,
+                                      ind).time_to(lower)) + d
             t, i = fast_seg(t, i, min(t_fast, dur), n)
             if dur > t_fast:
                 t, i = off_seg(t, i, dur - t_fast, n)
@@ -982,9 +1019,11 @@ def current_mode_actuation(drive: Drive, th: Thresholds, supply: float, coil_tem
         fast = loop(drive, supply, coil_temp, r_factor, l_factor, path="release") \
             if two_paths(drive) else None
         lead = drive.freewheel.bypass_lead if split_decay(drive) else 0.0
+        t_fast = 0.0 if lp.mixed is None else \
+            th.off_time_s if th.control == "hysteretic" else lp.mixed.fraction * th.off_time_s
         pieces, last_on = threshold_actuation(drive, lp, peak_time, hold_time, points, th.control,
                                               th.lower_a, th.upper_a, th.off_time_s, th.delay_s,
-                                              fast, lead)
+                                              fast, lead, t_fast)
         return boost_columns(drive, eddy_waveform(drive, lp, supply, pieces, peak_time, label, fast, lead,
                                                   last_on),
                              supply, peak_time, float(np.ravel(lp.r_on)[0]), lp.inductance[...])

@@ -29,9 +29,24 @@ RIPPLE_METHOD = ("coil current flat at its hold mean while on; the source gives 
 MIXED_RIPPLE_METHOD = ("coil current flat at its hold mean, drawn while on and returned in each "
                        "off-time's fast part; the source gives the average, the capacitor the rest: "
                        "mean x sqrt(D + F - (F - D)^2), F = fast_fraction x (1 - D)")
+#: ... and under a current-mode hold's mixed decay, whose fast part is timed per period.
+MIXED_CURRENT_RIPPLE_METHOD = ("coil current flat at its hold mean, drawn while on and returned in each "
+                               "off-time's fast part; the source gives the average, the capacitor the "
+                               "rest: mean x sqrt(D + F - (F - D)^2), F = the fast part's time / the "
+                               "period at the point")
 #: ... and with a clamp across the switch, whose off-times draw from the bus too.
 CLAMP_RIPPLE_METHOD = ("the bus draws the coil current on and off (switch, then clamp); the source "
                        "gives the average, the capacitor the coil's ripple: ripple / (2 sqrt 3)")
+
+
+def mixed_share(lp, hold, on_share) -> np.ndarray:
+    """The share of each hold period a full bridge's mixed decay spends all four open: a
+    PWM hold's ``fast_fraction x (1 - D)``; a current-mode hold's own fast time over its
+    period (``hold.fast_time``: the off-time's fraction, or the hysteretic one-shot cut
+    short where the lower threshold comes in it)."""
+    if hold.fast_time is None:
+        return lp.mixed.fraction * (1.0 - np.asarray(on_share, float))
+    return np.asarray(hold.fast_time, float) / np.asarray(hold.period, float)
 
 
 def through_clamp(drive: Drive) -> bool:
@@ -374,8 +389,9 @@ def supply_result(drive: Drive, grid, res, peak_time, duty, read, supply_min_cod
     k_e = int(np.argmax(energy))
     on_share = np.broadcast_to(duty, lp.v_on.shape)
     off_draws = clamp and not split_decay(drive)   # the hold's off-times through the clamp
-    fast_share = 0.0 if lp.mixed is None else lp.mixed.fraction * (1.0 - on_share)
-    how = RIPPLE_METHOD if lp.mixed is None else MIXED_RIPPLE_METHOD
+    fast_share = 0.0 if lp.mixed is None else mixed_share(lp, res.hold, on_share)
+    how = RIPPLE_METHOD if lp.mixed is None else \
+        MIXED_RIPPLE_METHOD if res.hold.fast_time is None else MIXED_CURRENT_RIPPLE_METHOD
     if off_draws:
         ripple = bus_model.clamp_hold_ripple_current(res.hold.ripple)
         on_share = np.ones_like(on_share)

@@ -941,6 +941,8 @@ def _eddy_current_top(th, cold, low: float) -> tuple[np.ndarray, np.ndarray]:
     j = sensed_threshold(th.upper_a / low, cold.v_on, cold.r_on, r_e)
     if th.control == "hysteretic":
         j = np.maximum(j, sensed_threshold(th.lower_a / low, -cold.v_off, cold.r_off, r_e))
+        if cold.mixed is not None:   # a bridge's mixed decay: the lower threshold met in the fast part
+            j = np.maximum(j, sensed_threshold(th.lower_a / low, -cold.mixed.v_fast, cold.mixed.r_fast, r_e))
     r_th = cold.r_on * r_e / (cold.r_on + r_e)
     if isinstance(l_m, flux.FluxCoil):
         curve, s_min = l_m.curve, float(np.min(l_m.scale))
@@ -961,8 +963,9 @@ def _eddy_current_hold(th, cold, low: float, settle: float) -> tuple[float, floa
     magnetising current ``i_m``, which rises toward ``A = V/R_on`` on the Thevenin pair.
     The switch trips off at a magnetising current of at most ``J``: the upper (peak)
     threshold read low, ``((R_on + R_e) I_hi' - V) / R_e``; hysteretic, also the lower
-    threshold read low as it switches on (``((R_off + R_e) I_lo' + V_off) / R_e``: it
-    may step above the upper at once). So an on-time ends at most at ``max(J, A - (A - J)
+    threshold read low as it switches on (``((R_off + R_e) I_lo' + V_off) / R_e``, and a
+    bridge's mixed decay's fast path ``((R_f + R_e) I_lo' + V_f) / R_e``: it may step above
+    the upper at once). So an on-time ends at most at ``max(J, A - (A - J)
     exp(-delay R_th/L))``; a fixed off-time may also switch on above ``J`` and run the
     delay alone, a PWM of ``delay`` on and ``t_off`` off whose orbit's top is the other
     bound (the map of one such cycle is a contraction: the tops stay under the larger).
@@ -1163,7 +1166,8 @@ def system_drives(system: System) -> list:
     current-mode hold switches on its thresholds, not on the timer; its fixed-duty fallback
     (what the firmware starts the hold with or falls back to, :mod:`.hold_current`) runs on
     the timer's period at ``hold.frequency`` and takes part as a voltage-mode hold does. A
-    fixed off-time is the timer's own period, so it cannot share one. A latching coil has
+    fixed off-time is the timer's own period, and a current-mode mixed decay's fast part
+    its own one-shot, so neither can share one. A latching coil has
     no hold PWM: it takes no part in a shared timer."""
     board_ch = system.channels[0].drive.board.channels
     timer = system.channels[0].drive.board.timer
@@ -1182,6 +1186,13 @@ def system_drives(system: System) -> list:
                                  "its timer's own prescaler and period, which a timer shared by channels "
                                  f"{list(group)} cannot give; expected the channel alone on a timer "
                                  "([channels] timers) or control = \"hysteretic\"")
+            if c.drive.hold.mode == "current" and c.drive.hold.fast_fraction > 0:
+                raise InputError(c.drive.source, "hold.fast_fraction",
+                                 f"{c.drive.hold.fast_fraction:g} on channel {c.name!r} of {system.source}: "
+                                 "a current-mode mixed decay's fast part is a one-shot of its timer's own "
+                                 f"prescaler and period, which a timer shared by channels {list(group)} "
+                                 "cannot give; expected the channel alone on a timer ([channels] timers) "
+                                 "or 0")
         windows = [(c.name, c.drive.hold.frequency * (1 - c.drive.hold.frequency_tolerance),
                     c.drive.hold.frequency * (1 + c.drive.hold.frequency_tolerance),
                     c.drive.hold.frequency) for c in members]

@@ -38,6 +38,17 @@ part is a fixed time ``t_f`` (a one-shot from the turn-off, ``fast_time``): the 
 runs on that path -- fast until ``t_f``, slow after -- down to the lower threshold, which
 may come in the fast part (the switch then turns on with the fast part cut short).
 
+Mixed decay with an eddy term (an :class:`~coildrive.model.eddy.EddyCoil` on a linear
+branch): the same path in the magnetising current, each segment the branch's exact
+Thevenin one (below), the fast part's terminal current ``(R_e i_m - V_f) / (R_f + R_e)``
+blocking at ``i_m = V_f / R_e`` with the flux then dying through ``R_e`` alone
+(:func:`coildrive.model.eddy_mixed.fast_part`), the slow part never blocking. The sensed
+lower threshold is a magnetising current of the path it is met on -- fast: ``((R_f + R_e)
+I_lo + V_f) / R_e``, slow: ``(R_s + R_e) I_lo / R_e`` -- and the sensed current steps UP
+where Q2 + Q4 close (the slow loop takes no ``V_f``): if that step is still at or below
+``I_lo`` the off-time ends there. A fast path's first sensed current at or below ``I_lo``
+(``m_lo,fast >= m_hi``) is ``chatter``. The off-time still starts at the top: no fixed point.
+
 ``delay`` is the time from a threshold crossing to the switch edge (comparator, ADC
 conversion, interrupt latency): the current runs on for that long past each threshold,
 so the ripple's top is ``A + (I_hi - A) e^(-delay/tau_on)`` and the bottom the decay
@@ -88,6 +99,7 @@ All functions broadcast over numpy arrays; units A, V, ohm, H, s, Hz.
 
 from __future__ import annotations
 
+import dataclasses
 from dataclasses import dataclass
 
 import numpy as np
@@ -106,7 +118,9 @@ class CurrentModeSteadyState:
     ``i_min``/``i_max`` are the bottom and top of the ripple (the thresholds moved by
     the delay); ``t_on``/``t_off`` the switch on and off times, ``conduction_off`` the
     part of ``t_off`` with current flowing; ``dcm`` marks a current that dies out
-    during the off time.
+    during the off time. A full bridge's mixed decay: ``fast_time`` the time of each
+    period with all four switches open (s: the fast part, cut short where the off-time
+    ends in it), ``charge_fast``/``square_fast`` its current's integrals.
     """
 
     i_min: np.ndarray
@@ -133,6 +147,7 @@ class CurrentModeSteadyState:
     magnetising_rms: np.ndarray | None = None
     charge_fast: np.ndarray | float = 0.0
     square_fast: np.ndarray | float = 0.0
+    fast_time: np.ndarray | None = None
 
     def as_pwm(self) -> PwmSteadyState:
         """The same steady state in the voltage-mode container (same field meanings), so
@@ -143,7 +158,8 @@ class CurrentModeSteadyState:
                               charge_off=self.charge_off, square_off=self.square_off,
                               terminal_min=self.terminal_min, terminal_max=self.terminal_max,
                               eddy_energy=self.eddy_energy, magnetising_rms=self.magnetising_rms,
-                              charge_fast=self.charge_fast, square_fast=self.square_fast)
+                              charge_fast=self.charge_fast, square_fast=self.square_fast,
+                              fast_time=self.fast_time)
 
 
 def _unregulated(bottom, top, t_on, t_off, conduction, a, regulated):
@@ -215,7 +231,7 @@ def hysteretic_steady_state(i_lo, i_hi, v_on, r_on, r_off, v_off, inductance,
     Loop arguments as :func:`coildrive.model.pwm.pwm_steady_state` (V, ohm, H; ``v_off``
     > 0 opposes the freewheeling current). ``mixed``: a full bridge's mixed decay, each
     off-time fast for the fixed ``fast_time`` s (or until the lower threshold, if sooner),
-    then slow (a linear coil; module docstring).
+    then slow (a linear coil, an eddy term too; module docstring).
     """
     if mixed is not None and mixed.fraction > 0:
         return _mixed_orbit("hysteretic", i_lo, i_hi, fast_time, v_on, r_on, r_off, inductance, delay, mixed)
@@ -242,7 +258,7 @@ def hysteretic_steady_state(i_lo, i_hi, v_on, r_on, r_off, v_off, inductance,
 def off_time_steady_state(i_peak, t_off, v_on, r_on, r_off, v_off, inductance,
                           delay=0.0, mixed: MixedDecay | None = None) -> CurrentModeSteadyState:
     """Peak threshold ``i_peak`` A, fixed off time ``t_off`` s, ``delay`` s to turn off;
-    ``mixed``: a full bridge's mixed decay (a linear coil; module docstring)."""
+    ``mixed``: a full bridge's mixed decay (a linear coil, an eddy term too; module docstring)."""
     if mixed is not None and mixed.fraction > 0:
         return _mixed_orbit("off_time", 0.0, i_peak, t_off, v_on, r_on, r_off, inductance, delay, mixed)
     i_peak, t_off, v_on, r_on, r_off, v_off, delay, inductance = _broadcast(
@@ -299,16 +315,20 @@ class MixedPath:
 
 def _mixed_orbit(control, i_lo, level, t_off, v_on, r_on, r_off, inductance, delay,
                  mixed: MixedDecay) -> CurrentModeSteadyState:
-    """The current-mode orbit with a full bridge's mixed decay (a linear coil): off at the
+    """The current-mode orbit with a full bridge's mixed decay (a linear coil; an eddy term:
+    :func:`_eddy_mixed_orbit`): off at the
     upper/peak threshold ``level`` A (+ the delay's run-on), then fast for ``t_off`` s of a
     fixed off-time's ``mixed.fraction`` (``control`` ``"off_time"``) or, hysteretic, for the
     fixed one-shot time ``t_off`` s, the rest slow; the off-time ends after ``t_off`` s or at
     the lower threshold ``i_lo`` A (+ the delay)."""
-    if isinstance(inductance, (FluxCoil, EddyCoil)):
-        raise ValueError("a current-mode mixed-decay hold is modelled for a linear coil")
-    i_lo, level, t_off, v_on, r_on, r_off, delay, ind, r_f, v_f = np.broadcast_arrays(
-        *(np.asarray(x, float) for x in (i_lo, level, t_off, v_on, r_on, r_off, delay, inductance,
-                                         mixed.r_fast, mixed.v_fast)))
+    if isinstance(inductance, EddyCoil) and not isinstance(inductance.magnetising, FluxCoil):
+        return _eddy_mixed_orbit(control, i_lo, level, t_off, v_on, r_on, r_off, inductance, delay, mixed)
+    if isinstance(inductance, EddyCoil):
+        raise ValueError("a current-mode mixed-decay hold is modelled for a linear coil or a curve "
+                         "(an eddy term on a linear branch)")
+    # (a curve: the same segments, each the curve's exact quadrature through coildrive.model.rl)
+    i_lo, level, t_off, v_on, r_on, r_off, delay, r_f, v_f, ind = _broadcast(
+        (i_lo, level, t_off, v_on, r_on, r_off, delay, mixed.r_fast, mixed.v_fast), inductance)
     a = v_on / r_on
     regulated = level < a
     pk = np.where(regulated, level, 0.5 * a)
@@ -326,10 +346,71 @@ def _mixed_orbit(control, i_lo, level, t_off, v_on, r_on, r_off, inductance, del
     q_on, s_on = rise_integrals(t_on, bottom, v_on, r_on, ind)
     q_f, s_f, q_s, s_s = (np.where(regulated, x, 0.0) for x in (q_f, s_f, q_s, s_s))
     return _state(bottom, top, t_on, t_off, conduction, q_on, s_on, q_f + q_s, s_f + s_s, regulated,
-                  charge_fast=q_f, square_fast=s_f)
+                  charge_fast=q_f, square_fast=s_f,
+                  fast_time=np.where(regulated, np.minimum(path.t_fast, t_off), 0.0))
 
 
 # ------------------------------------------------------------------- an eddy-current term
+def _eddy_mixed_orbit(control, i_lo, level, t_off, v_on, r_on, r_s, e: EddyCoil, delay,
+                      mixed: MixedDecay) -> CurrentModeSteadyState:
+    """:func:`_mixed_orbit` with an eddy term on a linear magnetising branch (module
+    docstring): the thresholds on the sensed current as magnetising currents of the loop
+    that conducts there; the fast part's terminal current blocks at ``i_m = V_f / R_e``
+    and the flux then dies through ``R_e`` (:func:`coildrive.model.eddy_mixed.fast_part`),
+    the slow part (Q2 + Q4, nothing opposing) never blocks. The off-time starts at the
+    peak, so the orbit needs no fixed point."""
+    from .eddy_mixed import _assemble, fast_part
+
+    i_lo, level, t_off, v_on, r_on, r_s, delay, e = _broadcast(
+        (i_lo, level, t_off, v_on, r_on, r_s, delay), e)
+    r_f, v_f = np.broadcast_arrays(np.asarray(mixed.r_fast, float), np.asarray(mixed.v_fast, float),
+                                   level)[:2]
+    re_, mag = e.resistance, e.magnetising
+    rs_t = eddy.thevenin(0.0, r_s, re_)[1]
+    a = v_on / r_on
+    m_pk = sensed_threshold(level, v_on, r_on, re_)
+    hyst = control == "hysteretic"
+    m_lo_f = sensed_threshold(i_lo, -v_f, r_f, re_)     # the lower threshold met in the fast part
+    # the turn-off step alone passes the threshold (hysteretic: the fast path's first
+    # sensed current at or below I_lo; off-time: the switch-on step above I_pk)
+    chatter = (level < a) & ((m_lo_f >= m_pk) if hyst else (m_pk <= 0.0))
+    regulated = (level < a) & ~chatter
+    pk = np.where(regulated, m_pk, 0.5 * a)
+    top = eddy.rise_current(delay, pk, v_on, r_on, e)                     # run-on past the threshold
+    t_fast = t_off if hyst else mixed.fraction * t_off                     # the fast part's own time
+    c_full = fast_part(e, t_fast, top, r_f, v_f)[0]                         # i_m at the fast part's end
+    if hyst:   # the off-time ends at the lower threshold (+ the delay), in the fast part or the slow
+        m_lo_s = sensed_threshold(i_lo, 0.0, r_s, re_)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            t1 = eddy.decay_time(np.clip(m_lo_f, 1e-300, None), top, r_f, v_f, e)
+            t2 = t_fast + np.where(c_full > m_lo_s, eddy.branch_time(mag, c_full, np.minimum(m_lo_s, c_full),
+                                                                     0.0, rs_t), 0.0)
+        in_fast = (m_lo_f > 0) & (t1 <= t_fast)
+        t_off = np.where(regulated, np.where(in_fast, t1, t2), 0.0) + delay
+    t_f = np.minimum(t_off, t_fast)
+    c, tc, q_f, s_f, w_f, sm_f = fast_part(e, t_f, top, r_f, v_f)
+    t_s = np.maximum(t_off - t_fast, 0.0)
+    bottom = eddy.branch_current(mag, t_s, c, 0.0, rs_t)
+    slow = eddy.branch_integrals(mag, t_s, c, bottom, 0.0, rs_t)
+    t_on = eddy.rise_time(pk, np.minimum(bottom, pk), v_on, r_on, e) + delay
+    vt_on, rt_on = eddy.thevenin(v_on, r_on, re_)
+    on = eddy.branch_integrals(mag, t_on, bottom, top, vt_on, rt_on)
+    rows = _assemble(tc, bottom, top, c, on, None, slow, t_f, t_on, t_s, v_on, r_on, r_s, v_f, r_f, re_,
+                     (q_f, s_f, w_f, sm_f))
+    (_, _, _, blocked, conduction, q_on, s_on, q_f, s_f, q_s, s_s, t_min, t_max, w, sm) = rows
+    bottom, top, t_on, t_off, conduction = _unregulated(bottom, top, t_on, t_off, conduction, a, regulated)
+    # unregulated: the coil carries V/R_on, no branch voltage and so no eddy current
+    q_on, s_on = np.where(regulated, q_on, a * t_on), np.where(regulated, s_on, a * a * t_on)
+    sm = np.where(regulated, sm, a * a * t_on)
+    q_f, s_f, q_s, s_s, w = (np.where(regulated, x, 0.0) for x in (q_f, s_f, q_s, s_s, w))
+    t_max, t_min = np.where(regulated, t_max, a), np.where(regulated, t_min, a)
+    st = _state(bottom, top, t_on, t_off, conduction, q_on, s_on, q_f + q_s, s_f + s_s, regulated,
+                charge_fast=q_f, square_fast=s_f, terminal_min=t_min, terminal_max=t_max, eddy_energy=w,
+                chatter=chatter, fast_time=np.where(regulated, t_f, 0.0))
+    return dataclasses.replace(st, ripple=t_max - t_min, dcm=regulated & (blocked > 0.5),
+                               magnetising_rms=np.sqrt(np.maximum(sm / st.period, 0.0)))
+
+
 def sensed_threshold(level, v, r, r_e):
     """The magnetising current (A) at which the sensed (terminal) current of a loop
     conducting ``v`` V through ``r`` ohm is ``level`` A: ``((r + R_e) level - v) / R_e``

@@ -121,9 +121,9 @@ class _Mixed:
     current steps up where the slow part starts (the fast part's end, at the same
     instant)."""
 
-    def __init__(self, lp: Loop, pt: _Point, top: float, t_off: float):
+    def __init__(self, lp: Loop, pt: _Point, top: float, t_off: float, t_fast: float | None = None):
         m = lp.mixed
-        self.t_fast = float(m.fraction) * t_off
+        self.t_fast = float(m.fraction) * t_off if t_fast is None else t_fast   # (a one-shot's own time)
         self.t_slow = t_off - self.t_fast
         self.fast = _Point(dataclasses.replace(lp, r_off=np.ravel(m.r_fast)[:1], v_off=np.ravel(m.v_fast)[:1]),
                            top)
@@ -135,6 +135,42 @@ class _Mixed:
     def period_end(self, top, _t_off=None):
         """Magnetising current A at the end of the off-time from ``top`` A."""
         return self.slow.current(self.fast.decay(top, self.t_fast), self.t_slow)
+
+    def sensed_down_to(self, m0: float, level: float) -> float:
+        """s from the turn-off at ``m0`` A of magnetising current until the SENSED current
+        falls to ``level`` A (> 0): in the fast part (its terminal current ``(R_e i_m -
+        V_f) / (R_f + R_e)``) or, after its end, in the slow part (``R_e i_m / (R_s +
+        R_e)``, stepping up there: at the fast part's end if that step is still at or below
+        ``level``)."""
+        f = self.fast
+        m_f = ((f.r_off + self.re) * level + f.v_off) / self.re
+        if m0 > m_f:
+            t1 = f.time_to(m0, m_f)
+            if t1 <= self.t_fast:
+                return t1
+        c = float(f.decay(m0, self.t_fast))
+        m_s = (self.r_s + self.re) * level / self.re
+        if c <= m_s:
+            return self.t_fast
+        return self.t_fast + float(self.slow.time_at(m_s) - self.slow.time_at(c))
+
+    def off_time_samples(self, m0: float, dur: float, n: int):
+        """One off-time of ``dur`` s from ``m0`` A: ``(time from its start s, magnetising A,
+        terminal A, 1 in the fast part)``, about ``n`` samples in each part, the fast
+        part's block a sample and its end two (the terminal current's step up as Q2 + Q4
+        close)."""
+        t_f = min(dur, self.t_fast)
+        tb = float(self.fast.conduction(m0))
+        tf = np.unique(np.concatenate([np.linspace(0.0, t_f, n + 1), [tb] if tb < t_f else []]))
+        mf = self.fast.decay(m0, tf)
+        cf = self.fast.off_terminal(mf)
+        if dur <= self.t_fast:
+            return tf, mf, cf, np.ones_like(tf)
+        ts = np.linspace(0.0, dur - self.t_fast, n + 1)
+        ms = self.slow.current(float(mf[-1]), ts)
+        return (np.concatenate([tf, self.t_fast + ts]), np.concatenate([mf, ms]),
+                np.concatenate([cf, eddy.terminal(ms, 0.0, self.r_s, self.re)]),
+                np.concatenate([np.ones_like(tf), np.zeros_like(ts)]))
 
     def off_samples(self, tops, frac):
         """The off-times' samples from the tops ``tops`` (A, one per period): ``(time from
@@ -285,25 +321,27 @@ def actuation(drive: Drive, lp: Loop, peak_time: float, duty: float, frequency: 
 def threshold_actuation(drive: Drive, lp: Loop, peak_time: float, hold_time: float,
                         points: int, control: str, lower: float, upper: float,
                         off_time: float, delay: float, release: Loop | None = None,
-                        lead: float = 0.0):
+                        lead: float = 0.0, fast_time: float = 0.0):
     """The sample pieces of one actuation with a current-mode hold and the last on-time's
-    length: ``(pieces, s)``, the pieces those of :func:`actuation` (no fast parts): the
-    peak, the hold of :func:`threshold_hold`, the release. ``release``/``lead``: split
-    decay's fast loop and bypass lead, as in :func:`actuation` (the hold's off-times
-    through ``lp``'s slow path, the release from the last turn-off through the fast one)."""
+    length: ``(pieces, s)``, the pieces those of :func:`actuation`: the peak, the hold of
+    :func:`threshold_hold`, the release. ``release``/``lead``: split decay's fast loop and
+    bypass lead, as in :func:`actuation` (the hold's off-times through ``lp``'s slow path,
+    the release from the last turn-off through the fast one). A full bridge's mixed decay
+    (``lp.mixed``): each off-time fast (all four open) for ``fast_time`` s, then slow."""
     big = 40 * points
     pt, peak_end, ts, cs, ms, ons = _peak(drive, lp, peak_time, big)
     fasts = [np.zeros_like(ts[0])]
     pieces = (ts, ms, cs, ons, fasts)
+    mixed = _Mixed(lp, pt, peak_end, max(off_time, fast_time), fast_time) if lp.mixed is not None else None
     t, m, last = threshold_hold(pt, peak_time, peak_end, peak_time + hold_time, control, lower, upper,
-                                off_time, delay, points, pieces)
+                                off_time, delay, points, pieces, mixed)
     t_zero = _release_samples(pt, release, lead, t, m, last[0], last[1], big, pieces)
     return (ts, cs, ms, ons, fasts, t, t_zero), last[1]
 
 
 def threshold_hold(pt: _Point, t: float, m: float, end: float, control: str, lower: float,
                    upper: float, off_time: float, delay: float, points: int,
-                   pieces) -> tuple[float, float, list]:
+                   pieces, mixed: _Mixed | None = None) -> tuple[float, float, list]:
     """A current-mode hold at one point ``pt`` from ``t`` s and ``m`` A of magnetising
     current (the end of the peak) until the first turn-off edge at or after ``end`` s,
     appended to the sample pieces ``(time, magnetising, terminal, switch_on, fast)``
@@ -316,12 +354,16 @@ def threshold_hold(pt: _Point, t: float, m: float, end: float, control: str, low
     at every edge (two samples at the edge's instant). Where the threshold is out of
     reach (or the band chatters) the switch stays on to ``end``. Returns ``(t_off s,
     magnetising current there A, [start of the last on-time's magnetising current A, its
-    length s])`` (``[m, 0]`` without an on-time)."""
+    length s])`` (``[m, 0]`` without an on-time). ``mixed``: a full bridge's mixed decay,
+    each off-time along its fast-then-slow path (:class:`_Mixed`; the fast part's
+    samples flagged in ``fast``), the lower threshold met in either part."""
     ts, ms, cs, ons, fasts = pieces
     last = [m, 0.0]   # the latest on segment's start (magnetising A) and length (s)
     v, r_on = pt.v, pt.r_on
     m_hi = (r_on + pt.re) * upper / pt.re - v / pt.re
     m_lo = ((pt.r_off + pt.re) * lower + pt.v_off) / pt.re
+    if mixed is not None:   # the off-time opens on the fast path: its sensed current first
+        m_lo = ((mixed.fast.r_off + pt.re) * lower + mixed.fast.v_off) / pt.re
     top = pt.on.i[-1]
     regulated = upper < v / r_on and (m_lo < m_hi if control == "hysteretic" else m_hi > 0)
     first = True
@@ -340,17 +382,22 @@ def threshold_hold(pt: _Point, t: float, m: float, end: float, control: str, low
         return t + dur, float(mu[-1])
 
     while regulated and t < end:
-        dur = (pt.time_to(m, m_lo) if m > m_lo else 0.0) + delay if control == "hysteretic" else off_time
         n = big if first else points
         first = False
-        tb = float(pt.conduction(m))
-        td = np.unique(np.concatenate([np.linspace(0.0, dur, n + 1), [tb] if tb < dur else []]))
-        md = pt.decay(m, td)
+        if mixed is not None:
+            dur = mixed.sensed_down_to(m, lower) + delay if control == "hysteretic" else off_time
+            td, md, cd, fd = mixed.off_time_samples(m, dur, n)
+        else:
+            dur = (pt.time_to(m, m_lo) if m > m_lo else 0.0) + delay if control == "hysteretic" else off_time
+            tb = float(pt.conduction(m))
+            td = np.unique(np.concatenate([np.linspace(0.0, dur, n + 1), [tb] if tb < dur else []]))
+            md = pt.decay(m, td)
+            cd, fd = pt.off_terminal(md), np.zeros_like(td)
         ts.append(t + td)
         ms.append(md)
-        cs.append(pt.off_terminal(md))
+        cs.append(cd)
         ons.append(np.zeros_like(td))
-        fasts.append(np.zeros_like(td))
+        fasts.append(fd)
         t, m = t + dur, float(md[-1])
         dur = (float(pt.on.time_at(min(m_hi, top)) - pt.on.time_at(m)) if m < m_hi else 0.0) + delay
         if dur > 0:

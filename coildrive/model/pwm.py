@@ -75,6 +75,8 @@ class PwmSteadyState:
     magnetising_rms: np.ndarray | None = None
     charge_fast: np.ndarray | float = 0.0
     square_fast: np.ndarray | float = 0.0
+    fast_time: np.ndarray | None = None   # s per period all four open (current mode's; None: fraction x t_off)
+    fast_pulse: tuple | None = None       # (longest fast part s, shortest period s) on a drooping bus
 
 
 @dataclass(frozen=True)
