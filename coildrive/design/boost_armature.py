@@ -27,8 +27,8 @@ on the main bus from the hand-over, its capacitor a state of the flight
 (:func:`~coildrive.model.armature_boost.boosted_pull_in` with ``bus0``: the source's voltage,
 nothing drew from it during the peak), with the boost converter's draw from the hand-over
 on taken as the still coil's (:func:`coildrive.design.supply.converter_current` at the
-larger of the most current at the hand-over and the hold's top: the source ``V_s - R_s
-I_conv``). So the pull-in run's seat includes the droop, and with a voltage-mode PWM hold
+larger of the hold's first on-time from the most current at the hand-over, the open coil's
+(:func:`hand_over_draw`), and the hold's top: the source ``V_s - R_s I_conv``). So the pull-in run's seat includes the droop, and with a voltage-mode PWM hold
 the lowest bus is the lower of two runs' (:func:`coildrive.design.supply.armature_bus`): the pull-in's (the
 earliest hand-over) and a fifth, the most current (the boost at its highest until the
 current reaches the most the peak can end with, ``end_current`` -- where that run never
@@ -94,6 +94,8 @@ class BoostRuns:
     #: the most current the boost at its lowest drives where it never reaches the trip
     #: (A per point; ``None``: the still coil's, :func:`coildrive.model.boost` ``highest_current``)
     reachable: np.ndarray | None = None
+    #: the hold's first period's duty per point the main bus's draw was taken at (:func:`hand_over_draw`)
+    first_duty: np.ndarray | None = None
 
 
 def boosted_params(drive: Drive, p: ArmatureParams, high: bool) -> ArmatureParams:
@@ -160,7 +162,7 @@ def _end(drive: Drive, pb: ArmatureParams, pin: PullInBatch, i_trip: float):
 
 
 def runs(drive: Drive, p: ArmatureParams, duty, period, i_top, thresholds: tuple[float, float],
-         bus_top=None, mixed=None) -> BoostRuns:
+         bus_top=None, mixed=None, first_duty=None) -> BoostRuns:
     """The runs of the module docstring at the points of ``p`` (the hold's loop on the main
     supply), the hold's ``duty`` and ``period`` s (per point) and its steady ripple top
     ``i_top`` A (the magnetising current's with an eddy term); ``thresholds``: the threshold
@@ -169,14 +171,18 @@ def runs(drive: Drive, p: ArmatureParams, duty, period, i_top, thresholds: tuple
     terminal current's top, which steps above ``i_top`` at each switch-on), default ``i_top``.
     ``mixed``: a full bridge's mixed-decay hold (:class:`~coildrive.model.pwm.MixedDecay`,
     its arrays per point): the hold after the threshold decays fast for that fraction of
-    each off-time first (:func:`~coildrive.model.armature_boost.boosted_pull_in`)."""
+    each off-time first (:func:`~coildrive.model.armature_boost.boosted_pull_in`).
+    ``first_duty``: the duty of the hold's first period (a closed loop's preload; ``None``:
+    ``duty``), for the most the coil draws from the main bus (:func:`hand_over_draw`)."""
     i_th, i_trip = thresholds
     low, high = boosted_params(drive, p, False), boosted_params(drive, p, True)
     long_time, _, low_boost, energy_low = _end(drive, low, pull_in(low, trip=i_trip), i_trip)
     finite = long_time[np.isfinite(long_time)]
     until = drive.pull_in.margin * (float(np.max(finite)) if finite.size else 0.0)
     end_time, end_current, end_boost, energy_high = _end(drive, high, pull_in(high, trip=i_trip), i_trip)
-    p_hold, bus0 = main_bus(drive, p, np.maximum(end_current, i_top if bus_top is None else bus_top))
+    p_hold, bus0 = main_bus(drive, p, np.maximum(hand_over_draw(drive, p, end_current, duty if first_duty is None
+                                                                else first_duty, period),
+                                                 i_top if bus_top is None else bus_top))
     slow = boosted_pull_in(low, p_hold, i_th, duty, period, until, i_top, bus0=bus0, orbit=False, mixed=mixed)
     fast_time = pull_in(high, trip=i_th).trip_time
     most = None
@@ -188,7 +194,28 @@ def runs(drive: Drive, p: ArmatureParams, duty, period, i_top, thresholds: tuple
                      end_current=end_current, end_boost=end_boost, energy=np.fmax(energy_low, energy_high),
                      duty=np.broadcast_to(np.asarray(duty, float), (len(p),)).copy(), window=until,
                      end_time=end_time, most=most, hold_params=p_hold,
-                     period=np.broadcast_to(np.asarray(period, float), (len(p),)).copy())
+                     period=np.broadcast_to(np.asarray(period, float), (len(p),)).copy(),
+                     first_duty=np.broadcast_to(np.asarray(duty if first_duty is None else first_duty, float),
+                                                (len(p),)).copy())
+
+
+def hand_over_draw(drive: Drive, p: ArmatureParams, end_current, first_duty, period) -> np.ndarray:
+    """The most current (A per point) the coil draws from the main bus in the hold's first
+    on-time after the hand-over at ``end_current`` A (the most the peak ends with): on a
+    stiff bus at ``V_s`` with the open coil, at rest or closing at the hand-over
+    (:func:`coildrive.design.supply.first_on_top`), at the first period's duty
+    ``first_duty`` and ``period`` s; ``end_current`` itself under a current-mode hold, which
+    stays off until the current falls into its band. Once seated, every later on-time lies
+    under it or the hold's top (the still coil's argument,
+    :func:`coildrive.design.supply.handover_bus`); while the armature is in flight that is
+    taken, not proven (the runs carry the bus itself then; only the converter's constant
+    draw rests on it)."""
+    if drive.hold.mode != "voltage":
+        return np.asarray(end_current, float)
+    from .supply import first_on_top
+
+    return first_on_top(p.v_on, p.r_on, p.coil_open, np.where(np.isfinite(end_current), end_current, 0.0),
+                        first_duty, period)
 
 
 def pwm_on_bus(drive: Drive) -> bool:
@@ -315,7 +342,9 @@ def sampled_pull_in(drive: Drive, res, v_factor, c_factor, duty, timeout):
     top = per_point(res.hold.i_max)
     t_max = getattr(res.hold, "terminal_max", None)   # (an eddy term: what the bus feeds)
     draw = top if t_max is None else np.maximum(top, per_point(t_max))
-    p_hold, bus0 = main_bus(drive, p, np.maximum(res.armature.boost.end_current, draw))
+    first = per_point(duty if res.first_duty is None else res.first_duty)
+    p_hold, bus0 = main_bus(drive, p, np.maximum(hand_over_draw(drive, p, res.armature.boost.end_current, first,
+                                                                per_point(res.hold.period)), draw))
     pin = boosted_pull_in(pb, p_hold, threshold(drive)[0], per_point(duty), per_point(res.hold.period),
                           per_point(timeout), top, bus0=bus0, orbit=False, mixed=_mixed(res.loop))
     return replace(res, pull_in_time=pin.seat_time.reshape(np.shape(res.pull_in_time)))

@@ -186,8 +186,9 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
     pin = rel = boosted = None
     if s.boosted:
         duty_pts = np.ravel(np.broadcast_to(np.asarray(duty, float), shape))
+        first_pts = duty_pts if first_duty is None else np.ravel(np.broadcast_to(np.asarray(first_duty, float), shape))
         if (reuse is not None and reuse.boost is not None and p_pull.same_points(reuse.params)
-                and np.array_equal(duty_pts, reuse.boost.duty)
+                and np.array_equal(duty_pts, reuse.boost.duty) and np.array_equal(first_pts, reuse.boost.first_duty)
                 and np.array_equal(np.ravel(ss.i_max), reuse.release_from)):
             boosted, rel = reuse.boost, reuse.release
         else:
@@ -197,7 +198,7 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
             boosted = runs(drive, p_pull, duty_pts, np.ravel(np.broadcast_to(ss.period, shape)),
                            np.ravel(ss.i_max), (i_th, i_trip),
                            None if ss.terminal_max is None else np.ravel(np.maximum(ss.terminal_max, ss.i_max)),
-                           mixed=None if lp.mixed is None else lp.mixed.flat(shape))
+                           mixed=None if lp.mixed is None else lp.mixed.flat(shape), first_duty=first_pts)
         pin = boosted.slow
     elif reuse is not None and p_pull.same_points(reuse.params):
         # Same points and coil temperatures: the runs do not depend on the peak length.

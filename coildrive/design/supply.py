@@ -199,29 +199,52 @@ def first_on_current(lp, i_m, duty, period) -> np.ndarray:
     a linear coil, a curve, an eddy term's branch). An unknown (NaN) duty is taken as all
     on: the bound stays a bound. Why it bounds the hold's later on-times on a bus at or
     below ``V_s``: :func:`_first_on_top`."""
+    return _rise_top(lp.v_on, lp.r_on, lp.inductance, i_m, duty, period)
+
+
+def _rise_top(v_on, r_on, ind, i_m, duty, period) -> np.ndarray:
+    """:func:`first_on_current` at ``v_on`` V, ``r_on`` ohm and the coil ``ind``."""
     t_on = np.clip(np.nan_to_num(np.asarray(duty, float), nan=1.0), 0.0, 1.0) * np.asarray(period, float)
-    return np.maximum(rl.rise_current(t_on, i_m, lp.v_on, lp.r_on, lp.inductance), i_m)
+    return np.maximum(rl.rise_current(t_on, i_m, v_on, r_on, ind), i_m)
+
+
+def first_on_top(v_on, r_on, ind, i_m, duty, period) -> np.ndarray:
+    """The most current (A) the bus gives the coil ``ind`` (H, a curve, an
+    :class:`~coildrive.model.eddy.EddyCoil`) in an on-time of ``duty`` x ``period`` s from
+    the magnetising current ``i_m`` A on a stiff bus at ``v_on`` V through ``r_on`` ohm
+    (:func:`_rise_top`; with an eddy term the larger of the terminal current ``(V_s + R_e
+    i_m)/(R + R_e)`` at either end and the magnetising current, which bounds what a
+    clamp's off-times draw, ``R_e i_m/(R_off + R_e)``). With a moving armature at rest on
+    the open stop or closing, ``ind`` its open coil
+    (:attr:`~coildrive.model.armature.ArmatureParams.coil_open`) bounds the on-time: ``L(x)
+    di/dt = v - R i - i L'(x) x'`` with ``L(x) >= L_open`` and the motional term ``-i L'
+    x' <= 0`` while the gap closes (``L' < 0``, ``x' <= 0``; a rebound off the seat is not
+    covered)."""
+    top = _rise_top(v_on, r_on, ind, i_m, duty, period)
+    if isinstance(ind, EddyCoil):     # (a clamp's off-times draw at most the magnetising current)
+        return np.maximum(eddy_terminal(top, v_on, r_on, ind.resistance), top)
+    return top
 
 
 def _first_on_top(drive: Drive, lp, i_m, duty, period) -> np.ndarray:
     """The most current (A) the main bus gives the coil in a fixed-duty hold's first
     on-time from the magnetising current ``i_m`` A at the hand-over, taken on a stiff bus
-    at ``V_s`` (:func:`coildrive.model.rl.rise_current`: a linear coil, a curve, an eddy
-    term's branch; with an eddy term the larger of the terminal current ``(V_s + R_e
-    i_m)/(R + R_e)`` at either end and the magnetising current, which bounds what a
-    clamp's off-times draw, ``R_e i_m/(R_off + R_e)``). Why it bounds every later draw too: the flux obeys ``dpsi/dt = v_th
-    - R_th i_m`` with the bus at or below ``V_s`` (the main diode blocks it from rising
-    above), so the current on the drooping bus never exceeds the stiff bus's under the
-    same switching (a one-state flow keeps its order; the off-times are the same flow on
-    both); on the stiff bus the period map is increasing, so the period-start currents
-    move monotonically onto the orbit and each on-time's top (an increasing function of
-    its start) lies below the first one's or the orbit's (:func:`handover_bus` takes the
-    hold's top too)."""
-    ind = lp.inductance
-    top = first_on_current(lp, i_m, duty, period)
-    if isinstance(ind, EddyCoil):     # (a clamp's off-times draw at most the magnetising current)
-        return np.maximum(eddy_terminal(top, lp.v_on, lp.r_on, ind.resistance), top)
-    return top
+    at ``V_s`` with the loop's coil (:func:`first_on_top`). Why it bounds every later draw
+    too: the flux obeys ``dpsi/dt = v_th - R_th i_m`` with the bus at or below ``V_s`` (the
+    main diode blocks it from rising above), so the current on the drooping bus never
+    exceeds the stiff bus's under the same switching (a one-state flow keeps its order; the
+    off-times are the same flow on both); on the stiff bus the period map is increasing, so
+    the period-start currents move monotonically onto the orbit and each on-time's top (an
+    increasing function of its start) lies below the first one's or the orbit's
+    (:func:`handover_bus` takes the hold's top too)."""
+    return first_on_top(lp.v_on, lp.r_on, lp.inductance, i_m, duty, period)
+
+
+def _shaped(coil, shape):
+    """``coil`` (H per point, or an :class:`~coildrive.model.eddy.EddyCoil` of them) reshaped to ``shape``."""
+    if isinstance(coil, EddyCoil):
+        return EddyCoil(np.reshape(coil.magnetising, shape), np.reshape(coil.resistance, shape))
+    return np.reshape(coil, shape)
 
 
 def handover_bus(drive: Drive, res, duty, first_duty=None) -> tuple[np.ndarray, np.ndarray, np.ndarray, str]:
@@ -256,8 +279,9 @@ def handover_bus(drive: Drive, res, duty, first_duty=None) -> tuple[np.ndarray, 
     source).
 
     With a moving armature (its runs, :mod:`coildrive.design.boost_armature`) the
-    hand-over current is the runs' most current at the end of the peak, and under a
-    voltage-mode PWM hold the lowest bus is the runs' on the bus
+    hand-over current is the runs' most current at the end of the peak (a closed loop's
+    first on-time from it the open coil's, :func:`first_on_top`: the armature may be on its
+    open stop or in flight then), and under a voltage-mode PWM hold the lowest bus is the runs' on the bus
     (:func:`armature_bus`: the armature in flight through
     the hold, then seated), the floor where an orbit had not repeated."""
     s = drive.supply
@@ -279,9 +303,10 @@ def handover_bus(drive: Drive, res, duty, first_duty=None) -> tuple[np.ndarray, 
     if runs is None and (pwm or first_duty is not None):
         top = np.maximum(top, _first_on_top(drive, lp, np.where(known, i_m, i_hand),
                                             duty if first_duty is None else first_duty, res.hold.period))
-    elif first_duty is not None:   # (a regulated hold holds an armature seated within the peak:
-        # the seated coil's first on-time from the most current at the hand-over)
-        top = np.maximum(top, _first_on_top(drive, lp, i_hand, first_duty, res.hold.period))
+    elif first_duty is not None:   # (a closed loop carries an armature still in flight, or at
+        # rest on the open stop, at the hand-over: the open coil's first on-time bounds it)
+        top = np.maximum(top, first_on_top(lp.v_on, lp.r_on, _shaped(res.armature.params.coil_open, np.shape(lp.v_on)),
+                                           i_hand, first_duty, res.hold.period))
     i_conv = converter_current(drive, lp.v_on, top)
     floor = bus_model.bus_floor(lp.v_on, s.source_resistance, top + i_conv)
     ind, r_e = lp.inductance, None
