@@ -188,7 +188,7 @@ def test_a_two_winding_drive_without_its_reset_winding_is_refused(tmp_path):
     assert res.exit_code == 2 and "reset_coil" in res.stderr and "missing" in res.stderr
 
 
-@pytest.mark.parametrize("args", [["tune"]])
+@pytest.mark.parametrize("args", [["tune", "--port", "loop://"]])
 def test_commands_that_do_not_run_a_latch_say_so_in_one_line(tmp_path, args):
     args = [a.replace("OUT", str(tmp_path / "drv")).replace("x.png", str(tmp_path / "x.png"))
             .replace("w.csv", str(tmp_path / "w.csv")) for a in args]
@@ -245,12 +245,13 @@ def test_a_pulse_too_hot_for_the_coil_fails_and_writes_no_header(tmp_path):
 
 @pytest.mark.parametrize("path", [BRIDGE, RELAY], ids=["bridge", "reset-winding"])
 def test_the_bench_commands_refuse_a_latch_in_one_line(tmp_path, path):
-    """tune steps a peak-and-hold drive's PWM: a latching coil is refused with one line
-    naming hold.mode (exit 2), never a traceback (emulate and check run its pulses:
+    """Live tuning (tune --port) steps a peak-and-hold drive's PWM: a latching coil is
+    refused with one line naming hold.mode (exit 2), never a traceback (the offline sweep
+    of its pulse lengths: tests/test_tune_latch.py; emulate and check run its pulses:
     tests/test_latch_bench.py; firmware-driver writes its pulse driver:
     tests/test_latch_driver.py)."""
     assert load_drive(path).latch is not None, "the drive keeps its [reset] (config's Drive fields)"
-    for args in (["tune", str(path)],):
+    for args in (["tune", str(path), "--port", "loop://"],):
         res = CliRunner().invoke(app, args)
         assert res.exit_code == 2 and "hold.mode" in res.stderr, (args, res.exit_code, res.stderr)
         assert len(res.stderr.strip().splitlines()) == 1 and "Traceback" not in res.stderr, args

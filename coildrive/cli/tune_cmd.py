@@ -49,7 +49,7 @@ def tune_command(
     prefix: str = typer.Option("COIL", "--prefix", help="Name prefix of the header's macros."),
     min_frequency: str = typer.Option("20 kHz", "--min-frequency", help="Lowest PWM frequency swept (default: the audible limit)."),
     max_frequency: Optional[str] = typer.Option(None, "--max-frequency", help="Highest PWM frequency swept (default: board timer.max_pwm_frequency, else 100 kHz)."),
-    margin: Optional[float] = typer.Option(None, "--margin", help="Factor >= 1 on the minimum hold current (hold.current; default 1). With --port: on the bench drop-out current (default: armature.current_margin)."),
+    margin: Optional[float] = typer.Option(None, "--margin", help="Factor >= 1 on the minimum hold current (hold.current; default 1). With --port: on the bench drop-out current (default: armature.current_margin). A latching coil: on the worst pulse times (default: pull_in.margin and reset.margin)."),
     levels: int = typer.Option(8, "--levels", help="Hold-current levels swept upward from the target."),
     level_step: str = typer.Option("5 %", "--level-step", help='Step between levels, e.g. "5 %" or 0.05.'),
     max_ripple: Optional[str] = typer.Option(None, "--max-ripple", help='Ripple limit, peak-to-peak: "30 mA" or "20 %" of the target (default 20 %).'),
@@ -76,19 +76,27 @@ def tune_command(
     live = {"--baud": baud, "--capture": capture, "--repeats": repeats, "--supply": supply,
             "--coil-temp": coil_temp, "--hold-time": hold_time, "--resolution": resolution,
             "--detect": detect}
+    # the options of the offline sweep of a hold's PWM that differ from their defaults
+    offline = [option for option, given in (
+        ("--plot", plot is not None), ("--min-frequency", min_frequency != "20 kHz"),
+        ("--max-frequency", max_frequency is not None), ("--levels", levels != 8),
+        ("--level-step", level_step != "5 %"), ("--max-ripple", max_ripple is not None),
+        ("--min-steps", min_steps != 64), ("--top", top != 20)) if given]
     if port is not None:
-        offline = {"--plot": plot is not None, "--min-frequency": min_frequency != "20 kHz",
-                   "--max-frequency": max_frequency is not None, "--levels": levels != 8,
-                   "--level-step": level_step != "5 %", "--max-ripple": max_ripple is not None,
-                   "--min-steps": min_steps != 64, "--top": top != 20}
-        for option, given in offline.items():
-            if given:
-                raise InputError(option, "", "belongs to the offline sweep; not with --port")
+        if offline:
+            raise InputError(offline[0], "", "belongs to the offline sweep; not with --port")
         _live(drive, board, port, as_json, header, prefix, margin, **{k[2:].replace("-", "_"): v for k, v in live.items()})
         return
     for option, value in live.items():
         if value is not None:
             raise InputError(option, "", "is for the live bench tuning: give --port too")
+    d = load_drive(drive, board)
+    if d.latch is not None:
+        if offline:
+            raise InputError(offline[0], "", "belongs to the sweep of a hold's PWM; a latching coil's "
+                             "sweep steps its pulse lengths")
+        _latch(d, as_json, header, prefix, margin)
+        return
     if margin is None:
         margin = 1.0
     from ..tune.sweep import TuneOptions, recommended_design, tune
@@ -104,7 +112,6 @@ def tune_command(
     if header is not None:
         from ..codegen.header import check_prefix
         check_prefix(prefix)
-    d = load_drive(drive, board)
     result = tune(d, options)
     des = recommended_design(result)
     if des is not None and des.timer.compare_ticks != result.recommendation.compare_ticks:
@@ -133,6 +140,34 @@ def tune_command(
     if header is not None:
         from ..codegen.header import generate_header
         write_atomic(header, generate_header(des, prefix))
+        status(f"wrote header {header}")
+
+
+def _latch(d, as_json: bool, header: Optional[Path], prefix: str, margin: Optional[float]) -> None:
+    """``tune`` of a latching coil: the offline pulse sweep (:mod:`coildrive.tune.latch`),
+    its table or JSON, and with ``--header`` the header of the recommended pulses (only when
+    their design passes). Exit 1 without a recommendation or when its design fails."""
+    from ..tune.latch import tune_latch
+    from ..tune.latch_report import latch_tune_dict, latch_tune_ok, print_latch_tune
+
+    if margin is not None and not margin >= 1:
+        raise InputError("--margin", "", f"{margin:g} must be at least 1 (the factor on the worst pulse time)")
+    if header is not None:
+        from ..codegen.header import check_prefix
+        check_prefix(prefix)
+    result = tune_latch(d, margin)
+    if as_json:
+        typer.echo(json.dumps(latch_tune_dict(result), indent=2))
+    else:
+        print_latch_tune(result)
+    if not latch_tune_ok(result):
+        why = ("its design fails " + ", ".join(c.name for c in result.recommended.failed)
+               if result.recommended is not None else "no recommendation")
+        status(f"coildrive tune: {why}" + (f"; header {header} not written" if header is not None else ""))
+        raise typer.Exit(1)
+    if header is not None:
+        from ..codegen.latch_header import generate_latch_header
+        write_atomic(header, generate_latch_header(result.recommended, prefix))
         status(f"wrote header {header}")
 
 

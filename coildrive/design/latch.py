@@ -308,8 +308,11 @@ def winding_drive(drive: Drive, reset: bool) -> Drive:
     return drive
 
 
-def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
-    """Size one pulse and give its figures (module docstring)."""
+def _pulse(drive: Drive, reset: bool, fixed: int | None = None) -> tuple[PulseResult, list[Check]]:
+    """Size one pulse and give its figures (module docstring). ``fixed``: run the pulse
+    ``fixed`` ticks instead of the sized length (a timed pulse without a supply table; the
+    offline tuning's steps, :mod:`coildrive.tune.latch`); its ``_pulse`` check then says
+    whether that length keeps the pulse's margins."""
     lt = drive.latch
     wd = winding_drive(drive, reset)
     coil = wd.coil
@@ -346,6 +349,9 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
                            "set_armature_seats check)")
         ticks = None
     governed = "" if ticks is None else ("force margin" if (by_force or 0) > (by_time or 0) else "time margin")
+    sized = ticks
+    if fixed is not None and ticks is not None:
+        ticks, governed = fixed, "a set length"
     table = None
     if ticks is not None and drive.pull_in.compensate:
         table, v_first = _table(drive, wd, coil, scale, current, cm, margin, settle)
@@ -474,7 +480,12 @@ def _pulse(drive: Drive, reset: bool) -> tuple[PulseResult, list[Check]]:
     elif reset and drive.armature is not None:
         result, check = _opens(drive, pts, t_req, result)
         checks.append(check)
-    if table is None:
+    if table is None and fixed is not None and ticks is not None:
+        ok = ticks >= sized
+        detail = (f"{name} pulse {ticks} ticks ({t_long * 1e3:.4g} ms, {governed}) vs the {sized} its margins "
+                  f"need: the shortest ({t_short * 1e3:.4g} ms) carries {result.end_current_a:.4g} A at the "
+                  "worst corner")
+    elif table is None:
         ok = ticks is not None
         detail = (f"{name} pulse {ticks} ticks ({t_long * 1e3:.4g} ms, {governed}): the shortest "
                   f"({t_short * 1e3:.4g} ms) carries {result.end_current_a:.4g} A >= "
@@ -831,12 +842,14 @@ def rise_current_at(drive: Drive, lp, t) -> np.ndarray:
     return bus_rise(drive, lp, np.full(np.shape(lp.v_on), t), lp.inductance)
 
 
-def design_latch(drive: Drive) -> LatchDesign:
+def design_latch(drive: Drive, fixed: dict[str, int] | None = None) -> LatchDesign:
     """Design the set and reset pulses of a latching coil and the shortest interval
-    between them (module docstring)."""
+    between them (module docstring). ``fixed``: pulse name -> ticks it runs instead of its
+    sized length (timed pulses without a supply table; :mod:`coildrive.tune.latch`)."""
     pulses, checks = [], []
+    fixed = fixed or {}
     for reset in (False, True):
-        p, c = _pulse(drive, reset)
+        p, c = _pulse(drive, reset, fixed.get("reset" if reset else "set"))
         pulses.append(p)
         checks += c
     th = drive.thermal

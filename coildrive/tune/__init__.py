@@ -7,6 +7,8 @@
   corner), ``dropout`` (the judge: did the armature drop out in a captured actuation?),
   ``search`` (the duty search) -- driven by ``live.LiveTuner`` (the device steps);
   ``live_report`` shows it.
+* ``latch``: a latching coil's offline sweep of its timed pulses' lengths (``coildrive tune
+  LATCH.toml``; every step is the latch design with that length); ``latch_report`` shows it.
 
 Imports run one way: ``design``, ``bench`` and ``model`` below, ``cli`` above.
 """

@@ -1,0 +1,84 @@
+"""The terminal table and ``--json`` document of a latching coil's pulse sweep
+(:mod:`coildrive.tune.latch`; docs/tuning.md). They read a :class:`LatchTune` and
+compute nothing."""
+
+from __future__ import annotations
+
+import dataclasses
+
+from .. import __version__
+from ..jsondoc import document_head, json_ready
+from .latch import LatchTune
+
+
+#: The table's word for what governs the interval (the design's own phrase in the JSON).
+SHORT = {"the pulse and its decay to zero": "decay", "the coil's temperature": "heat",
+         "the capacitor's recharge": "recharge", "the armature's travel to the open stop": "travel",
+         "the boost's recharge": "boost"}
+
+
+def latch_tune_ok(r: LatchTune) -> bool:
+    """A recommendation whose design passes every check."""
+    return r.recommended is not None and r.recommended.ok
+
+
+def latch_tune_dict(r: LatchTune) -> dict:
+    """The ``tune --json`` document of a latching coil."""
+    rec = r.recommended
+    recommendation = None
+    if rec is not None:
+        recommendation = {p.name: {"ticks": p.ticks, "time_s": p.time_s} for p in rec.latch.pulses}
+        recommendation.update(interval_s=rec.latch.interval_s, interval_ticks=rec.latch.interval_ticks,
+                              hottest_coil_c=rec.latch.hottest_coil_c,
+                              failed_checks=[c.name for c in rec.failed])
+    return json_ready({
+        **document_head(r.design.drive, __version__, r.design.drive.input_hash()),
+        "mode": "latch",
+        "ok": latch_tune_ok(r),
+        "margin": r.margin,
+        "tick_rate_hz": r.design.latch.tick_rate_hz,
+        "pulses": [{**{k: v for k, v in dataclasses.asdict(s).items() if k != "steps"},
+                    "steps": [dataclasses.asdict(x) for x in s.steps]} for s in r.sweeps],
+        "recommendation": recommendation,
+        "notes": list(r.notes),
+        "cautions": list(rec.cautions if rec is not None else r.design.cautions),
+    })
+
+
+def print_latch_tune(r: LatchTune) -> None:
+    """The sweep of each pulse as a table on stdout (t margin: the shortest real pulse over
+    the worst time to the pulse's current; i margin: its current there over the pulse's
+    current; by: what governs the interval), then the recommendation and cautions."""
+    from rich.console import Console
+    from rich.table import Table
+
+    con = Console()
+    con.print(f"[bold]{r.design.drive.name}[/bold]: latching coil, pulse lengths swept at the worst corner "
+              f"(tick {1e3 / r.design.latch.tick_rate_hz:.4g} ms)")
+    for s in r.sweeps:
+        t = Table(title=f"{s.name} pulse: margin {s.margin:g} on {s.worst_time_s * 1e3:.4g} ms "
+                        f"({s.worst_corner}), {s.current_margin:g} x current for {s.settle_time_s * 1e3:.4g} ms; "
+                        f"designed {s.design_ticks} ticks")
+        for col in ("ticks", "ms", "t margin", "i margin", "keeps", "supply mJ", "copper mJ",
+                    "interval ms", "coil degC", "by"):
+            t.add_column(col, justify="left" if col in ("keeps", "by") else "right")
+        for x in s.steps:
+            mark = " <" if x.ticks == s.recommended_ticks else ""
+            t.add_row(f"{x.ticks}{mark}", f"{x.time_s * 1e3:.4g}", f"{x.time_margin:.3g}",
+                      f"{x.current_margin:.3g}", "yes" if x.keeps else "no", f"{x.supply_j * 1e3:.4g}",
+                      f"{x.copper_j * 1e3:.4g}", f"{x.interval_s * 1e3:.4g}", f"{x.hottest_coil_c:.4g}",
+                      SHORT.get(x.interval_governed_by, x.interval_governed_by))
+        con.print(t)
+    rec = r.recommended
+    if rec is None:
+        con.print("no recommendation: " + "; ".join(r.notes or ["no swept length keeps the margins"]))
+    else:
+        parts = ", ".join(f"{p.name} {p.ticks} ticks ({p.time_s * 1e3:.4g} ms)" for p in rec.latch.pulses)
+        con.print(f"recommended: {parts}; pulse no faster than every {rec.latch.interval_s * 1e3:.4g} ms "
+                  f"({rec.latch.governed_by}); coil at most {rec.latch.hottest_coil_c:.4g} degC")
+        if rec.failed:
+            con.print("its design fails: " + ", ".join(c.name for c in rec.failed))
+        for n in r.notes:
+            con.print(f"note: {n}")
+        for c in rec.cautions:
+            con.print(f"[yellow]caution[/yellow]: {c}")
