@@ -168,13 +168,25 @@ class LatchDevice(VirtualDevice):
             self._faults[self._count + 1] = [(now + length, int(FaultCode.BOOST_TIMEOUT))]
         self._record(now, (kind, length))
 
-    def _stop(self, now: float) -> None:
-        """STOP at ``now``: the switches open at once (the pulse ends there)."""
+    def _stop(self, now: float) -> bool:
+        """STOP at ``now``: the switches open at once (the pulse ends there). With a moving
+        armature a set pulse cut before the armature rests on the seat is not modelled (the
+        catch would not hold it, and its fall back open is no part of
+        :mod:`coildrive.model.latch_waveform`): that pulse runs on to its end instead, and
+        ``False`` says so (a STOP command then replies BUSY)."""
+        from ..model.latch_waveform import NotSeated
+
         rec = self._rec
         if rec is None or now >= rec.t_off or rec.stopped:
-            return
+            return True
+        key = (rec.key[0], max(now - rec.t_on, 1.0 / self.sample_rate))
+        try:
+            self._waveform(key)
+        except NotSeated:
+            return False
         self._faults.pop(rec.number, None)   # ended before its time-out
-        self._replan(rec, (rec.key[0], max(now - rec.t_on, 1.0 / self.sample_rate)), now)
+        self._replan(rec, key, now)
+        return True
 
     def _execute(self, cmd, now: float) -> tuple[int, int]:
         op = cmd.opcode
@@ -185,8 +197,7 @@ class LatchDevice(VirtualDevice):
             self._start(now)
             return ReplyStatus.OK, int(round(self.pulse_time(kind) * 1e6))
         if op == Opcode.STOP:
-            self._stop(now)
-            return ReplyStatus.OK, 0
+            return (ReplyStatus.OK if self._stop(now) else ReplyStatus.BUSY), 0
         if op == Opcode.QUERY_INFO:
             return ReplyStatus.OK, 0
         return ReplyStatus.UNKNOWN_OPCODE, 0

@@ -173,10 +173,11 @@ class LatchFirmwareDevice(LatchDevice):
         self._asked = True
         self.lib.fil_command(COMMANDS[kind])
 
-    def _stop(self, now: float) -> None:
+    def _stop(self, now: float) -> bool:
         """STOP: the driver opens the switches at its next tick (and drops a request)."""
         self._asked = False
         self.lib.fil_command(COMMANDS["stop"])
+        return True
 
     def next_due(self) -> float | None:
         due = super().next_due()

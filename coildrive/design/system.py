@@ -1367,12 +1367,16 @@ def _refuse(system: System, ch) -> None:
     closed-loop) hold or a current-mode one, or a latching coil (its pulses from the boost
     too), or a boosted peak (a linear coil with a moving armature, an eddy term or both; a
     curve, with an eddy term too). Anything else is refused in one line: a moving armature
-    over two curves with a boosted peak (the single-channel design refuses it too), and a
+    over two curves with a boosted peak (the single-channel design refuses it too), a
+    latching coil with an eddy term or a curve (the pulses' bound takes a linear winding), and a
     boosted peak or pulses without ``supply.boost_efficiency`` (its converter's draw)."""
     d = ch.drive
     why = None
     if d.coil.flux_current and d.armature is not None and d.supply.boosted:
         key, why = "armature", "a moving armature over flux-linkage curves with a boosted peak"
+    elif d.hold.mode == "latch" and (d.coil.eddy_resistance or d.coil.flux_current):
+        key = "coil.eddy_resistance" if d.coil.eddy_resistance else "coil.flux_current"
+        why = "a latching coil with an eddy-current term or a flux-linkage curve (its pulses' bound)"
     elif d.supply.boosted and not d.supply.boost_efficiency > 0:
         raise InputError(d.source, "supply.boost_efficiency", f"missing: channel {ch.name!r} of {system.source} "
                          "has a boosted peak or pulses, whose converter draws from the shared rail, expected its "
@@ -1382,7 +1386,7 @@ def _refuse(system: System, ch) -> None:
                          "in a system yet; expected a linear coil (with an [armature], an eddy term or both) "
                          "or a flux-linkage curve (with an eddy term, an [armature] or both), "
                          "on one switch or a full bridge under a voltage-mode fixed, supply-table, closed-loop "
-                         "or current-mode hold, or a latching coil (its pulses from the boost too); a boosted peak "
+                         "or current-mode hold, or a latching coil on a linear winding without an eddy term (its pulses from the boost too); a boosted peak "
                          "on a linear coil (an eddy term, an [armature], both or neither) or on a curve (an eddy "
                          "term or not) without an [armature]")
 

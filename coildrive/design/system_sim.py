@@ -335,7 +335,8 @@ def latch_run(d, supply: float, coil_temp: float, hold_time: float, r_factor: fl
     pulse's decay), each the winding's own pulse and decay
     (:func:`coildrive.model.latch_waveform.pulse`); from the boost, each pulse until the
     firmware's threshold at the point (:func:`coildrive.design.latch.firmware_pulse`) and
-    the boost capacitor through both (:func:`coildrive.model.latch_waveform.boost_column`)."""
+    the boost capacitor through both (:func:`coildrive.model.latch_waveform.boost_column`;
+    with a moving armature the set pulse's capacitor is its armature run's, ``seating``)."""
     from ..model.latch_waveform import boost_column, pulse
     from .latch import firmware_pulse, winding_drive
 
@@ -344,7 +345,9 @@ def latch_run(d, supply: float, coil_temp: float, hold_time: float, r_factor: fl
     if drive.supply.boosted:
         by = {name: firmware_pulse(d, name, supply, coil_temp, r_factor, l_factor) for name in by}
     reset_drive = winding_drive(drive, True)
-    ts, is_, ons, _, tz, _, _ = pulse(drive, supply, coil_temp, r_factor, l_factor, by["set"], points)
+    ts, is_, ons, buses, tz, _, moving = pulse(drive, supply, coil_temp, r_factor, l_factor, by["set"], points)
+    # (with a moving armature the set pulse's run is the boost capacitor's too)
+    seating = None if moving is None else (ts, is_, ons, buses)
     tr, ir, onr, _, _, _, _ = pulse(reset_drive, supply, coil_temp, r_factor, l_factor, by["reset"], points)
     interval = d.latch.interval_s if math.isfinite(d.latch.interval_s) else 0.0
     gap = max(hold_time, interval, tz)
@@ -359,7 +362,7 @@ def latch_run(d, supply: float, coil_temp: float, hold_time: float, r_factor: fl
     if drive.supply.boosted:
         def level(rel):
             return boost_column(drive, reset_drive, supply, coil_temp, r_factor, l_factor, rel, by["set"],
-                                by["reset"], gap)
+                                by["reset"], gap, seating)
     return LatchRun(np.concatenate([ts, gap + tr]), np.abs(np.concatenate([is_, ir])), on, switches,
                     boost_level=level)
 
