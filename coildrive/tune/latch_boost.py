@@ -4,7 +4,7 @@ each pulse's current threshold could sit, and what every threshold costs.
 A pulse from the boost ends when its current reaches ``current_margin`` x the pulse's
 current (``pull_in.current_margin``, ``reset.current_margin``), not after a time, so
 :func:`tune_boosted` steps each pulse's ``current_margin`` (the other pulse at its own)
-from 1.0 up to ``TOP`` x the file's, ``STEPS`` values plus the file's own and the margin
+from 1.0 up to ``TOP`` x the file's (at most 3, the files' bound), ``STEPS`` values plus the file's own and the margin
 asked for. Every step is :func:`coildrive.design.latch.design_latch` run on the drive with
 that margin in the file's place: its threshold code, time-out, shortest and longest pulse,
 the armature's latest seat (where it has one), the energy the boost gives, the recharge
@@ -24,11 +24,12 @@ Units: SI (s, J, A), temperatures in degC.
 from __future__ import annotations
 
 import dataclasses
+import math
 from dataclasses import dataclass
 
 import numpy as np
 
-from ..config import Drive
+from ..config import BOUNDS, Drive
 from ..design.latch import LatchDesign, design_latch
 from ..errors import InputError
 
@@ -48,7 +49,8 @@ class ThresholdStep:
     fastest corner's time to the threshold, the slowest corner's until the firmware sees
     it), the armature's latest seat (s; ``None`` without a moving armature or a threshold
     reached) and whether it seats before the threshold everywhere (``None`` without one),
-    the energy the boost gives per pulse (J), its recharge (s), the design's interval (s)
+    the energy the boost gives per pulse (J), its recharge (s; these three ``None`` where no
+    corner reaches the threshold), the design's interval (s)
     and what governs it, the coil's hottest (degC); ``design_ok`` with ``failed`` its
     failing checks; ``keeps``: at least the force margin asked and the design passes.
     ``refused``: why the design does not model that margin (a moving armature still in
@@ -105,9 +107,10 @@ def with_current_margins(drive: Drive, margins: dict[str, float]) -> Drive:
 
 
 def _margins(design: float, asked: float) -> list[float]:
-    """The stepped margins: ``STEPS`` from 1.0 to ``TOP`` x the file's, with the file's and
-    the asked one (rounded to 1e-6: margins read as the file would write them)."""
-    spread = np.linspace(1.0, max(TOP * design, asked, 1.0 + 1e-3), STEPS)
+    """The stepped margins: ``STEPS`` from 1.0 to ``TOP`` x the file's (at most the highest
+    ``current_margin`` a file may give), with the file's and the asked one (rounded to 1e-6: margins read as the file would write them)."""
+    top = min(TOP * design, BOUNDS["pull_in.current_margin"][1])   # no higher than a file may write
+    spread = np.linspace(1.0, max(top, 1.0 + 1e-3), STEPS)
     return sorted({round(float(x), 6) for x in spread} | {design, asked})
 
 
@@ -120,11 +123,12 @@ def _step(drive: Drive, name: str, cm: float, floor: float) -> ThresholdStep:
     b = p.boost
     seat = next((c.ok for c in d.checks if c.name == f"{name}_armature_seats"), None)
     failed = [c.name for c in d.failed]
+    some = math.isfinite(b.fastest_time_s)   # the threshold reached at some corner: a pulse to cost
     return ThresholdStep(
         current_margin=cm, threshold_a=b.threshold_a, threshold_code=b.threshold_code, trip_max_a=b.trip_max_a,
-        code_fits=b.code_fits, timeout_ticks=b.timeout_ticks, timeout_s=b.timeout_s, shortest_s=b.fastest_time_s,
-        longest_s=b.time_to_threshold_s, seated_s=p.seat_time_s, seats=seat, boost_energy_j=b.energy_j,
-        recharge_s=b.recharge_time_s, interval_s=d.latch.interval_s, interval_governed_by=d.latch.governed_by,
+        code_fits=b.code_fits, timeout_ticks=b.timeout_ticks, timeout_s=b.timeout_s,
+        shortest_s=b.fastest_time_s if some else None, longest_s=b.time_to_threshold_s, seated_s=p.seat_time_s,
+        seats=seat, boost_energy_j=b.energy_j if some else None, recharge_s=b.recharge_time_s if some else None, interval_s=d.latch.interval_s, interval_governed_by=d.latch.governed_by,
         hottest_coil_c=d.latch.hottest_coil_c, design_ok=d.ok, failed=failed,
         keeps=cm >= floor * (1 - 1e-12) and d.ok)
 
