@@ -8,7 +8,9 @@
   ``search`` (the duty search) -- driven by ``live.LiveTuner`` (the device steps);
   ``live_report`` shows it.
 * ``latch``: a latching coil's offline sweep of its timed pulses' lengths (``coildrive tune
-  LATCH.toml``; every step is the latch design with that length); ``latch_report`` shows it.
+  LATCH.toml``; every step is the latch design with that length); ``latch_boost``: pulses
+  from the boost, a sweep of each pulse's threshold ``current_margin`` instead (every step
+  the latch design at that margin); ``latch_report`` shows both.
 
 Imports run one way: ``design``, ``bench`` and ``model`` below, ``cli`` above.
 """

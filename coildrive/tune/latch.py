@@ -22,9 +22,10 @@ The recommendation is the shortest step that keeps the margins the pulse is desi
 construction the design's own length at that margin (the tests check it). The sweep
 always holds that length and the tick below it, so "shortest" is exact to the tick.
 
-Not tuned here (refused in one line by :func:`check_latch_tunable`): pulses from the boost
-(they end at a current threshold, not after a time) and a supply-compensated pulse table
-(``pull_in.compensate``).
+Pulses from the boost end at a current threshold, not after a time: their sweep steps each
+pulse's ``current_margin`` instead (:mod:`coildrive.tune.latch_boost`; ``sweeps`` then holds
+its :class:`~coildrive.tune.latch_boost.ThresholdSweep`). Not tuned here (refused in one
+line by :func:`check_latch_tunable`): a supply-compensated pulse table (``pull_in.compensate``).
 
 Units: SI (s, J, A), temperatures in degC.
 """
@@ -41,6 +42,7 @@ from ..config import Drive
 from ..design.latch import LatchDesign, design_latch
 from ..design.peak import _ticks
 from ..errors import InputError
+from .latch_boost import ThresholdSweep, tune_boosted
 
 #: Longest length swept, as a multiple of the designed length (our choice: past that the
 #: pulse only heats the coil).
@@ -90,11 +92,12 @@ class PulseSweep:
 
 @dataclass
 class LatchTune:
-    """The result of :func:`tune_latch`: the file's design, one sweep per pulse, and the
-    design that runs the recommended pulses (``recommended``: the header's source)."""
+    """The result of :func:`tune_latch`: the file's design, one sweep per pulse (of its
+    length, or from the boost of its threshold's ``current_margin``), and the design that
+    runs the recommended pulses (``recommended``: the header's source)."""
 
     design: LatchDesign
-    sweeps: list[PulseSweep]
+    sweeps: list[PulseSweep] | list[ThresholdSweep]
     recommended: LatchDesign | None
     margin: float | None
     notes: list[str] = dataclasses.field(default_factory=list)
@@ -102,10 +105,7 @@ class LatchTune:
 
 def check_latch_tunable(drive: Drive) -> None:
     """Raise :class:`InputError` (naming the key) for latch pulses this tuning does not
-    step: from the boost, or from a supply-compensated table."""
-    if drive.supply.boosted:
-        raise InputError(drive.source, "supply.boost", "coildrive tune steps timed latch pulses; pulses from "
-                         "the boost end at their current thresholds: coildrive design sizes them")
+    step: from a supply-compensated table."""
     if drive.pull_in.compensate:
         raise InputError(drive.source, "pull_in.compensate", "coildrive tune steps one fixed length per latch "
                          "pulse; a supply-compensated pulse table is sized by coildrive design")
@@ -144,8 +144,13 @@ def _step(drive: Drive, name: str, ticks: int, margin: float) -> PulseStep:
 
 def tune_latch(drive: Drive, margin: float | None = None) -> LatchTune:
     """Sweep each pulse's length (module docstring); ``margin``: the time margin the
-    recommendation keeps on both pulses (default: the file's)."""
+    recommendation keeps on both pulses (default: the file's). Pulses from the boost: the
+    sweep of their thresholds, ``margin`` the least ``current_margin`` kept
+    (:func:`coildrive.tune.latch_boost.tune_boosted`)."""
     check_latch_tunable(drive)
+    if drive.supply.boosted:
+        base, sweeps, recommended = tune_boosted(drive, margin)
+        return LatchTune(base, sweeps, recommended, margin)
     base = design_latch(drive)
     asked = with_margin(drive, margin)   # its steps' checks hold them to the margin asked for
     sized = design_latch(asked)          # the pulses the design sizes at that margin

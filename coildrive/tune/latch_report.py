@@ -9,6 +9,7 @@ import dataclasses
 from .. import __version__
 from ..jsondoc import document_head, json_ready
 from .latch import LatchTune
+from .latch_boost import ThresholdSweep
 
 
 #: The table's word for what governs the interval (the design's own phrase in the JSON).
@@ -27,7 +28,10 @@ def latch_tune_dict(r: LatchTune) -> dict:
     rec = r.recommended
     recommendation = None
     if rec is not None:
-        recommendation = {p.name: {"ticks": p.ticks, "time_s": p.time_s} for p in rec.latch.pulses}
+        recommendation = {p.name: {"ticks": p.ticks, "time_s": p.time_s,
+                                   **({} if p.boost is None else {"current_margin": p.current_margin,
+                                                                  "threshold_code": p.boost.threshold_code})}
+                          for p in rec.latch.pulses}
         recommendation.update(interval_s=rec.latch.interval_s, interval_ticks=rec.latch.interval_ticks,
                               hottest_coil_c=rec.latch.hottest_coil_c,
                               failed_checks=[c.name for c in rec.failed])
@@ -36,6 +40,7 @@ def latch_tune_dict(r: LatchTune) -> dict:
         "mode": "latch",
         "ok": latch_tune_ok(r),
         "margin": r.margin,
+        "swept": "current_margin" if r.design.drive.supply.boosted else "length",
         "tick_rate_hz": r.design.latch.tick_rate_hz,
         "pulses": [{**{k: v for k, v in dataclasses.asdict(s).items() if k != "steps"},
                     "steps": [dataclasses.asdict(x) for x in s.steps]} for s in r.sweeps],
@@ -46,13 +51,37 @@ def latch_tune_dict(r: LatchTune) -> dict:
 
 
 def print_latch_tune(r: LatchTune) -> None:
-    """The sweep of each pulse as a table on stdout (t margin: the shortest real pulse over
-    the worst time to the pulse's current; i margin: its current there over the pulse's
-    current; by: what governs the interval), then the recommendation and cautions."""
+    """The sweep of each pulse as a table on stdout, then the recommendation and cautions."""
     from rich.console import Console
-    from rich.table import Table
 
     con = Console()
+    if r.design.drive.supply.boosted:
+        _print_thresholds(con, r)
+    else:
+        _print_lengths(con, r)
+    rec = r.recommended
+    if rec is None:
+        con.print("no recommendation: " + "; ".join(r.notes or ["no swept step keeps the margins"]))
+        return
+    parts = ", ".join(f"{p.name} {p.ticks} ticks ({p.time_s * 1e3:.4g} ms)" if p.boost is None else
+                      f"{p.name} at {p.current_margin:g} x {p.current_a:.4g} A (code {p.boost.threshold_code}, "
+                      f"time-out {p.ticks} ticks)" for p in rec.latch.pulses)
+    con.print(f"recommended: {parts}; pulse no faster than every {rec.latch.interval_s * 1e3:.4g} ms "
+              f"({rec.latch.governed_by}); coil at most {rec.latch.hottest_coil_c:.4g} degC")
+    if rec.failed:
+        con.print("its design fails: " + ", ".join(c.name for c in rec.failed))
+    for n in r.notes:
+        con.print(f"note: {n}")
+    for c in rec.cautions:
+        con.print(f"[yellow]caution[/yellow]: {c}")
+
+
+def _print_lengths(con, r: LatchTune) -> None:
+    """The timed pulses' sweeps of their lengths (t margin: the shortest real pulse over
+    the worst time to the pulse's current; i margin: its current there over the pulse's
+    current; by: what governs the interval)."""
+    from rich.table import Table
+
     con.print(f"[bold]{r.design.drive.name}[/bold]: latching coil, pulse lengths swept at the worst corner "
               f"(tick {1e3 / r.design.latch.tick_rate_hz:.4g} ms)")
     for s in r.sweeps:
@@ -69,16 +98,38 @@ def print_latch_tune(r: LatchTune) -> None:
                       f"{x.copper_j * 1e3:.4g}", f"{x.interval_s * 1e3:.4g}", f"{x.hottest_coil_c:.4g}",
                       SHORT.get(x.interval_governed_by, x.interval_governed_by))
         con.print(t)
-    rec = r.recommended
-    if rec is None:
-        con.print("no recommendation: " + "; ".join(r.notes or ["no swept length keeps the margins"]))
-    else:
-        parts = ", ".join(f"{p.name} {p.ticks} ticks ({p.time_s * 1e3:.4g} ms)" for p in rec.latch.pulses)
-        con.print(f"recommended: {parts}; pulse no faster than every {rec.latch.interval_s * 1e3:.4g} ms "
-                  f"({rec.latch.governed_by}); coil at most {rec.latch.hottest_coil_c:.4g} degC")
-        if rec.failed:
-            con.print("its design fails: " + ", ".join(c.name for c in rec.failed))
-        for n in r.notes:
-            con.print(f"note: {n}")
-        for c in rec.cautions:
-            con.print(f"[yellow]caution[/yellow]: {c}")
+
+
+def _ms(v: float | None) -> str:
+    return "-" if v is None else f"{v * 1e3:.4g}"
+
+
+def _print_thresholds(con, r: LatchTune) -> None:
+    """The boosted pulses' sweeps of their thresholds (i margin: ``current_margin``; code:
+    the threshold's ADC code; the time-out in ticks; the shortest and longest pulse; seat:
+    the armature's latest seat; boost mJ: the energy the boost gives per pulse; by / fails:
+    what governs the interval, or the design's failing checks)."""
+    from rich.table import Table
+
+    con.print(f"[bold]{r.design.drive.name}[/bold]: latching coil, pulses from the boost: thresholds swept "
+              f"(tick {1e3 / r.design.latch.tick_rate_hz:.4g} ms)")
+    for s in r.sweeps:
+        assert isinstance(s, ThresholdSweep)
+        t = Table(title=f"{s.name} pulse: threshold = i margin x {s.current_a:.4g} A, at least "
+                        f"{s.margin:g} kept; designed at {s.design_current_margin:g}")
+        for col in ("i margin", "code", "time-out", "shortest ms", "longest ms", "seat ms", "boost mJ",
+                    "recharge ms", "interval ms", "coil degC", "keeps", "by / fails"):
+            t.add_column(col, justify="left" if col in ("keeps", "by / fails") else "right")
+        for x in s.steps:
+            mark = " <" if x.current_margin == s.recommended_current_margin else ""
+            if x.refused is not None:
+                t.add_row(f"{x.current_margin:.4g}{mark}", *["-"] * 9, "no", "refused (below)")
+                continue
+            why = ", ".join(x.failed) if x.failed else SHORT.get(x.interval_governed_by, x.interval_governed_by)
+            t.add_row(f"{x.current_margin:.4g}{mark}", str(x.threshold_code),
+                      "-" if x.timeout_ticks is None else str(x.timeout_ticks), _ms(x.shortest_s),
+                      _ms(x.longest_s), _ms(x.seated_s), _ms(x.boost_energy_j), _ms(x.recharge_s),
+                      _ms(x.interval_s), f"{x.hottest_coil_c:.4g}", "yes" if x.keeps else "no", why)
+        con.print(t)
+        for why in sorted({x.refused for x in s.steps if x.refused}):
+            con.print(f"refused at a lower margin: {why}")
