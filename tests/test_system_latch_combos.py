@@ -11,7 +11,10 @@ a latching armature's set pulse cut by STOP: each refused in one line, never a t
   single-drive ``simulate``'s capacitor after the pulse;
 * A moving armature's set pulse cut before the armature rests on the seat: the catch would
   not hold it and its fall back open is no part of the latch model, so the virtual device
-  lets the pulse run to its end and replies BUSY to STOP (plumbing: no physics checked).
+  lets the pulse run to its end and replies BUSY to STOP (plumbing: no physics checked). The
+  compiled driver (``emulate --firmware``) opens the switches at STOP as the board does, so
+  its device ends the run in one line (``UnseatedCut``, exit 2), or with a log line when
+  the run's end cuts the pulse, never a traceback (plumbing; gcc, run under CI=true).
 """
 
 from __future__ import annotations
@@ -19,7 +22,7 @@ from __future__ import annotations
 import pytest
 from typer.testing import CliRunner
 
-from conftest import EXAMPLES
+from conftest import EXAMPLES, require_tool, run_cli
 from rail_reference import manifold_copy
 from test_emulator_device import command, run as run_device
 from test_system_flux import CURVE
@@ -69,6 +72,34 @@ def test_stop_in_a_latching_armatures_set_pulse_replies_busy():
     assert dev._rec.key == ("set", length) and not dev._rec.stopped
     dev.shutdown(0.01 + length / 3)
     assert dev._rec.key == ("set", length)
+
+
+def test_the_compiled_driver_cutting_an_unseated_set_pulse_ends_the_run_in_one_line(tmp_path, monkeypatch):
+    """The bolt catch (a latching armature, no boost) with its compiled driver (gcc): STOP
+    4 ms into the 25.4 ms set pulse replies OK and the driver's next tick opens the switches
+    before the bolt is seated -> UnseatedCut (a CoildriveError: one line, exit 2); the
+    ``--duration`` end cutting it the same way -> a log line, exit 0, no traceback."""
+    from coildrive.bench.latch_firmware_device import LatchFirmwareDevice, UnseatedCut
+    from coildrive.codegen.host_build import build_latch_firmware
+    from coildrive.codegen.latch_driver import pulse_switches
+    from coildrive.errors import CoildriveError
+
+    require_tool("gcc")
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "cache"))
+    path = EXAMPLES / "latching" / "bolt-catch-reset-winding-12v.toml"
+    assert run_cli("firmware-driver", str(path), "--out", str(tmp_path / "fw")).returncode == 0
+    d = design_latch(load_drive(path))
+    dev = LatchFirmwareDevice(d, build_latch_firmware(tmp_path / "fw", d), pulse_switches(d), DeviceOptions())
+    start = dev.interval                      # the driver's first set pulse
+    run_device(dev, start + 0.004, step=0.002)
+    assert dev._on is not None and dev._on[0] == "set"
+    assert command(dev, FrameEncoder(), start + 0.004, Opcode.STOP).status == ReplyStatus.OK
+    with pytest.raises(UnseatedCut, match="before the armature rests on the seat") as err:
+        run_device(dev, start + 0.006, step=0.001)
+    assert isinstance(err.value, CoildriveError) and "\n" not in str(err.value)
+    r = run_cli("emulate", str(path), "--firmware", str(tmp_path / "fw"), "--duration", f"{(start + 0.004) * 1e3:.4g} ms")
+    assert r.returncode == 0 and "Traceback" not in r.stderr, r.stderr
+    assert "stream ends: the driver stopped the set pulse after" in r.stderr, r.stderr
 
 
 def test_simulate_takes_the_armature_run_for_the_boost_capacitor(tmp_path):

@@ -19,7 +19,10 @@ The samples and events go out through the device's own encoder (the peak-and-hol
 driver's loop, :mod:`coildrive.bench.firmware_device`, uses the C encoder; the frames are
 the same, tests/test_stream_c.py). A pulse's recording is planned when the driver starts
 it, as long as twice its design length (the driver ends it sooner), and planned again
-at the tick the driver ends it: only samples after that tick change.
+at the tick the driver ends it: only samples after that tick change. The driver opens a
+pulse's switches at STOP wherever it is; a set pulse it cuts before a moving armature rests
+on the seat ends the run (:class:`UnseatedCut`, one line, exit 2; at the run's end a log
+line), since the armature's fall back open is no part of the coil model.
 """
 
 from __future__ import annotations
@@ -30,12 +33,20 @@ from pathlib import Path
 import numpy as np
 
 from ..design.figures import adc_code
-from .device import DeviceOptions, _Item
+from ..errors import CoildriveError
+from .device import DeviceOptions, LogEntry, _Item
 from .latch_device import PULSE_CODE, LatchDevice
 from .messages import EventKind, Opcode, ReplyStatus
 
 #: fil_command codes of the host port (codegen_templates/driver/latch_host_shim.c.j2).
 COMMANDS = {"set": 1, "reset": 2, "stop": 3}
+
+
+class UnseatedCut(CoildriveError):
+    """The driver opened a set pulse's switches (at STOP) before the moving armature rests
+    on the seat: the catch would not hold it, and its fall back open is no part of
+    :mod:`coildrive.model.latch_waveform`, so the model cannot stream what follows
+    (``str`` is the one line the CLI prints, exit 2)."""
 
 
 def load_latch_library(path: Path) -> ctypes.CDLL:
@@ -126,8 +137,22 @@ class LatchFirmwareDevice(LatchDevice):
                 if mask != 0:
                     raise RuntimeError(f"the driver sends OFF with the switches {mask:#x} on")
                 pulse, start = self._on
+                self._cut_waveform(pulse, t - start)
                 self._on = None
                 self._replan(self._rec, (pulse, t - start), t)
+
+    def _cut_waveform(self, pulse: str, on_time: float) -> None:
+        """The pulse ``pulse`` cut after ``on_time`` s, or :class:`UnseatedCut` when the
+        armature is not on the seat by then."""
+        from ..model.latch_waveform import NotSeated
+
+        try:
+            self._waveform((pulse, on_time))
+        except NotSeated:
+            raise UnseatedCut(f"the driver stopped the {pulse} pulse after {on_time * 1e3:.4g} ms of its "
+                              f"{self.pulse_time(pulse) * 1e3:.4g} ms, before the armature rests on the "
+                              "seat: the catch would not hold it, and the coil model does not follow its "
+                              "fall back open, so the run ends here") from None
 
     def _reading(self, t: float) -> int:
         """The current-sense ADC code at ``t`` s (0 between pulses): the running pulse's
@@ -174,7 +199,8 @@ class LatchFirmwareDevice(LatchDevice):
         self.lib.fil_command(COMMANDS[kind])
 
     def _stop(self, now: float) -> bool:
-        """STOP: the driver opens the switches at its next tick (and drops a request)."""
+        """STOP: the driver opens the switches at its next tick (and drops a request); a set
+        pulse it cuts before the armature is seated raises :class:`UnseatedCut` there."""
         self._asked = False
         self.lib.fil_command(COMMANDS["stop"])
         return True
@@ -200,12 +226,20 @@ class LatchFirmwareDevice(LatchDevice):
         return super()._execute(cmd, now)
 
     def shutdown(self, now: float) -> None:
+        """Stop the driver: its next tick opens the switches. A set pulse it cuts before the
+        armature rests on the seat (:class:`UnseatedCut`) ends the stream at that tick, with
+        a log line saying so (the model does not follow the armature's fall back open)."""
         self._advance(now)
+        now = self._now                     # the host's reads may have taken the device past ``now``
         self._auto = False
         self._stop(now)
         t = now + 1.0 / self.tick_rate      # the driver's next tick opens the switches
-        self._drive_until(t)
+        try:
+            self._drive_until(t)
+        except UnseatedCut as err:
+            self._log.append(LogEntry(now, f"stream ends: {err}"))
+            return
         self._run(t)
 
 
-__all__ = ["LatchFirmwareDevice", "COMMANDS", "load_latch_library"]
+__all__ = ["LatchFirmwareDevice", "COMMANDS", "UnseatedCut", "load_latch_library"]
