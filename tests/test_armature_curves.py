@@ -441,3 +441,30 @@ def test_fit_outputs_paste_into_a_drive_with_an_armature(tmp_path):
     assert d.coil.flux_current == pytest.approx(tuple(io), rel=1e-4)
     assert d.coil.seated_linkage == pytest.approx(tuple(pc), rel=1e-4)
     assert d.armature.inductance_closed == pytest.approx(pc[1] / ic[1], rel=1e-4)
+
+
+def test_cycle_with_two_curves_designs(tmp_path):
+    """An on/off cycle ([duty], a heat capacity) with a moving armature on its open and
+    seated curves used to crash ``design`` and ``simulate`` (a traceback) in the cycle's
+    peak heat, which scaled the open inductance as a number; both now design (the CLI run,
+    ~3 s, is left out here). The peak's heat runs through the open curve (the
+    locker-latch's curves, at the loop's tolerance scale), which bounds the closing
+    armature's rise from above (``L(x) di/dt <= V - R i``, common practice) and so heats
+    at least as much as the seated curve's slower rise (checked at the cold, highest bus)."""
+    from coildrive.config import load_drive
+    from coildrive.design.thermal_cycle import peak_heat, peak_inductance
+    from coildrive.model.circuit import loop
+    from coildrive.model.flux import FluxCoil
+
+    path = curve_drive(tmp_path)
+    text = path.read_text().replace("\n[thermal]", '\n[duty]\non_time = "0.5 s"\n'
+                                    'actuation_rate = "0.5 Hz"\n\n[thermal]\ncapacity = "10 J/K"', 1)
+    path.write_text(text)
+    drive = load_drive(path)
+    lp = loop(drive, np.array([drive.supply.max]), np.array([20.0]), np.array([1.0]), np.array([1.0]))
+    opened = peak_inductance(drive, lp)
+    assert isinstance(opened, FluxCoil) and isinstance(lp.inductance, FluxCoil)
+    assert opened.curve.psi(0.3) < lp.inductance.curve.psi(0.3)   # the open curve: less flux
+    t = np.array([2e-3])
+    seated_heat = peak_heat(dataclasses.replace(drive, armature=None), lp, t)
+    assert np.all(peak_heat(drive, lp, t) >= seated_heat * (1 - 1e-9))

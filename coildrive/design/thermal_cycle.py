@@ -48,14 +48,26 @@ def peak_inductance(drive: Drive, lp):
     """Inductance (H) of the peak's heat: the loop's, or with an ``[armature]`` the open
     one (same tolerance factor). While the gap closes ``L(x) di/dt <= V - R i``, so the rise
     through the open inductance bounds the moving armature's current -- and its heat --
-    from above. With an eddy term its magnetising branch opens so (an
-    :class:`~coildrive.model.eddy.EddyCoil` of the open branch, the same eddy resistance)."""
+    from above. With the open and seated curves the open curve (a
+    :class:`~coildrive.model.flux.FluxCoil`, :func:`_opened`). With an eddy term its
+    magnetising branch opens so (an :class:`~coildrive.model.eddy.EddyCoil` of the open
+    branch, the same eddy resistance)."""
     if drive.armature is None:
         return lp.inductance
-    ratio = drive.armature.inductance_open / drive.armature.inductance_closed
     if isinstance(lp.inductance, EddyCoil):
-        return EddyCoil(lp.inductance.magnetising * ratio, lp.inductance.resistance)
-    return lp.inductance * ratio
+        return EddyCoil(_opened(drive, lp.inductance.magnetising), lp.inductance.resistance)
+    return _opened(drive, lp.inductance)
+
+
+def _opened(drive: Drive, seated):
+    """The open coil of a moving armature from its seated one ``seated``: H scaled by
+    ``inductance_open / inductance_closed``, or with two curves (``seated`` the seated
+    curve's :class:`~coildrive.model.flux.FluxCoil`) the open curve ``coil.flux_current``/
+    ``flux_linkage`` at the same tolerance scale."""
+    if isinstance(seated, FluxCoil):
+        coil = drive.coil
+        return FluxCoil(flux.curve(coil.flux_current, coil.flux_linkage), seated.scale)
+    return seated * drive.armature.inductance_open / drive.armature.inductance_closed
 
 
 def pwm_state(duty, frequency):
@@ -150,12 +162,10 @@ def _moving_eddy_peak_heat(drive: Drive, lp, peak_time):
     e = lp.inductance
     mag = e.magnetising
     v, r = np.asarray(lp.v_on, float), np.asarray(lp.r_on, float)
+    opened = _opened(drive, mag)
     if isinstance(mag, FluxCoil):   # the seated curve; the open one is coil.flux_current's
-        coil = drive.coil
-        opened = FluxCoil(flux.curve(coil.flux_current, coil.flux_linkage), mag.scale)
         psi_top = np.asarray(mag.scale, float) * mag.curve.psi(v / r)
     else:
-        opened = mag * drive.armature.inductance_open / drive.armature.inductance_closed
         psi_top = mag * v / r
     _, s_pk, _ = eddy.rise_integrals(peak_time, 0.0, v, r, EddyCoil(opened, e.resistance))
     v_th, _ = eddy.thevenin(v, r, e.resistance)
