@@ -260,7 +260,6 @@ def test_design_simulate_and_emulate(tmp_path, hold):
     assert data["bus_v"][-1] == pytest.approx(10.8), "the hold and release on the stiff supply"
 
     from coildrive.bench.check import check_capture
-    from coildrive.bench.firmware_device import FirmwareDevice
     from coildrive.bench.synth import synth_design_capture
     from coildrive.design import design
 
@@ -269,7 +268,6 @@ def test_design_simulate_and_emulate(tmp_path, hold):
         cap = synth_design_capture(des, actuations=1, hold_time=0.05, noise_codes=1.0, seed=5)
         report = check_capture(cap, des)
         assert report.ok, [(i.name, i.status, i.detail) for i in report.items]
-    FirmwareDevice.check_design(des)   # firmware in the loop runs it (below)
 
 
 def test_firmware_in_the_loop_reads_the_drooping_bus(tmp_path):

@@ -263,7 +263,6 @@ def test_firmware_in_the_loop_flies_the_hold_on_the_main_bus(tmp_path, thin):
     from coildrive.model.pwm import pwm_steady_state
     from coildrive.model.supply import converter_current
 
-    FirmwareDevice.check_design(thin)   # no refusal
     (tmp_path / "d").mkdir()
     path = _droop(tmp_path / "d", ('"0.1 ohm"', '"0.4 ohm"'))
     s = thin.drive.supply

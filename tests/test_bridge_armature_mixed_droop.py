@@ -314,14 +314,12 @@ def test_firmware_in_the_loop(tmp_path):
     bus (the armature's run from the conversion at which the driver opens all four);
     ``check`` of the capture passes at the nominal supply with the hottest coil (plumbing:
     the device's physics is the design's)."""
-    from coildrive.bench.firmware_device import FirmwareDevice
     from coildrive.design import design
     from driver_harness import checked_rows, loop_captures
 
     path = _path(tmp_path, "true", 100e-6)
     drive = load_drive(path)
     des = design(drive)
-    FirmwareDevice.check_design(des)   # no refusal
     hot = max(c.coil_temp_c for c in des.corners)
     runs = [(drive.supply.nominal, hot, None)]
     (cap_path, _), = loop_captures(tmp_path, des, runs)

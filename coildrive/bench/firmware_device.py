@@ -176,7 +176,6 @@ class FirmwareDevice(LineOutput):
         self.options = o = options or DeviceOptions()
         self.design = design
         drive = design.drive
-        self.check_design(design)
         self.drive = drive
         board = drive.board
         self.lib = load_library(library)
@@ -293,14 +292,6 @@ class FirmwareDevice(LineOutput):
                            for path in ("hold", "release")}
             self._supply_code = self._volts_code(self.supply)
             self._log.append(LogEntry(t, f"supply {self.supply:.4g} V"))
-
-    @staticmethod
-    def check_design(design) -> None:
-        """``ValueError`` for a design the loop cannot run (see the module docstring). Every
-        Design the design stage makes runs today -- the last refused, a moving armature with
-        an eddy-current term on a boosted peak, is flown by :mod:`.boost_flight` -- so this
-        raises nothing; ``emulate --firmware`` and the tests call it before building, the one
-        place a refusal goes."""
 
     def _pull_in_flight(self, faulty, design, l_scale):
         """With an armature (not stuck): ``(time, current)`` of the pull-in with the switch

@@ -111,14 +111,12 @@ def emulate_command(
         elif firmware is not None:
             from ..bench.firmware_device import FirmwareDevice
             from ..codegen.host_build import build_firmware
-            FirmwareDevice.check_design(d)
             device = FirmwareDevice(d, build_firmware(firmware, d), options)
         else:
             device = VirtualDevice(d.drive, options, design=d)
     except ValueError as err:
         # the two designs the virtual device cannot run; anything else is not the file's
-        key = ("coil.eddy_resistance" if "eddy term" in str(err) else
-               "hold.mode" if "voltage-mode" in str(err) or "current-mode hold" in str(err) else
+        key = ("hold.mode" if "voltage-mode" in str(err) or "current-mode hold" in str(err) else
                "pull_in.current" if "peak phase" in str(err) else
                "armature" if "[armature]" in str(err) else None)
         if "threshold switch" in str(err):
