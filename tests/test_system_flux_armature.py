@@ -127,6 +127,19 @@ def _purge(system):
     return ch, drv, fresh, ld, 1 / ch["design"]["hold"]["frequency_hz"]
 
 
+def _never_above(t, i, branches, where) -> None:
+    """The simulated current ``i`` (A at ``t`` s) never above the channel's bound (its
+    largest branch there); ``where`` names the point in the failure."""
+    bound = np.max([_branch(t, b) for b in branches], axis=0)
+    assert np.all(i <= bound + 1e-9), (*where, float(np.max(i - bound)))
+
+
+def _within_35_percent(ratios) -> None:
+    """Each supply's bound over the peak at or above the simulated worst, within 35 %."""
+    print("bound / simulated worst over the peak:", [round(x, 4) for x in ratios])
+    assert all(1.0 <= x <= 1.35 for x in ratios), ratios
+
+
 def test_gap_bound_never_below_the_simulated_worst(system):
     """The purge valve's armature over its two curves (scipy, written afresh: module
     docstring) at the lowest and highest supply and just below a middle peak-table step,
@@ -148,12 +161,9 @@ def test_gap_bound_never_below_the_simulated_worst(system):
                 assert seated, (v, r_f, l_f)
                 worst = max(worst, float(i.max()))
                 t_h, i_h = _pwm(ld, l_f, float(i[-1]), v, loop, peak, duty, period, 12)
-                t, i = np.concatenate([t, t_h]), np.concatenate([i, i_h])
-                bound = np.max([_branch(t, b) for b in branches], axis=0)
-                assert np.all(i <= bound + 1e-9), (v, r_f, l_f, float(np.max(i - bound)))
+                _never_above(np.concatenate([t, t_h]), np.concatenate([i, i_h]), branches, (v, r_f, l_f))
         ratios.append(max(b["peak_end_a"] for b in branches) / worst)
-    print("bound / simulated worst over the peak:", [round(x, 4) for x in ratios])
-    assert all(1.0 <= x <= 1.35 for x in ratios), ratios
+    _within_35_percent(ratios)
 
 
 def test_staggered_total_never_above_the_limit(system):
@@ -201,12 +211,9 @@ def test_eddy_gap_bound_never_below_the_simulated_current(eddy_system):
             i = (v + r_e * i_m) / (r_on + r_e)
             worst = max(worst, float(i.max()))
             t_h, i_h = _eddy_run(ld, l_f, v, r_on, r_off, v_fw, r_e, peak, duty, period, i_m0=float(i_m[-1]))
-            t, i = np.concatenate([t, t_h]), np.concatenate([i, i_h])
-            bound = np.max([_branch(t, b) for b in branches], axis=0)
-            assert np.all(i <= bound + 1e-9), (v, r_f, l_f, float(np.max(i - bound)))
+            _never_above(np.concatenate([t, t_h]), np.concatenate([i, i_h]), branches, (v, r_f, l_f))
         ratios.append(max(b["peak_end_a"] for b in branches) / worst)
-    print("bound / simulated worst over the peak:", [round(x, 4) for x in ratios])
-    assert all(1.0 <= x <= 1.35 for x in ratios), ratios
+    _within_35_percent(ratios)
 
 
 def test_eddy_staggered_total_never_above_the_limit(eddy_system):
