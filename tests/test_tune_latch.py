@@ -96,6 +96,8 @@ def test_cli_table_and_the_latch_refusals(tmp_path):
     res = runner.invoke(app, ["tune", str(RELAY)])
     assert res.exit_code == 0, res.output
     assert "recommended: set 14 ticks (14 ms), reset 14 ticks (14 ms)" in res.stdout
+    # the energy columns name their own corner (highest supply, coldest coil), not the title's
+    assert " ".join(res.stdout.split()).count("supply and copper mJ at the energy corner (28 V, coil -20 degC") == 2
     for args, words in (([str(RELAY), "--plot", str(tmp_path / "p.png")], "--plot"),
                         ([str(RELAY), "--margin", "0.9"], "--margin"),
                         ([str(RELAY), "--port", "loop://"], "tune without --port sweeps its pulse lengths")):

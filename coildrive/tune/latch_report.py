@@ -87,7 +87,8 @@ def _print_lengths(con, r: LatchTune) -> None:
     for s in r.sweeps:
         t = Table(title=f"{s.name} pulse: margin {s.margin:g} on {s.worst_time_s * 1e3:.4g} ms "
                         f"({s.worst_corner}), {s.current_margin:g} x current for {s.settle_time_s * 1e3:.4g} ms; "
-                        f"designed {s.design_ticks} ticks")
+                        f"designed {s.design_ticks} ticks",
+                  caption=f"supply and copper mJ at the energy corner ({_energy_corner(r, s.name)})")
         for col in ("ticks", "ms", "t margin", "i margin", "keeps", "supply mJ", "copper mJ",
                     "interval ms", "coil degC", "by"):
             t.add_column(col, justify="left" if col in ("keeps", "by") else "right")
@@ -98,6 +99,12 @@ def _print_lengths(con, r: LatchTune) -> None:
                       f"{x.copper_j * 1e3:.4g}", f"{x.interval_s * 1e3:.4g}", f"{x.hottest_coil_c:.4g}",
                       SHORT.get(x.interval_governed_by, x.interval_governed_by))
         con.print(t)
+
+
+def _energy_corner(r: LatchTune, name: str) -> str:
+    """The corner (and boost side) the design takes pulse ``name``'s energy at: the energy
+    columns' corner, not the title's worst corner for the time."""
+    return next(p.energy_corner for p in r.design.latch.pulses if p.name == name)
 
 
 def _ms(v: float | None) -> str:
@@ -116,7 +123,8 @@ def _print_thresholds(con, r: LatchTune) -> None:
     for s in r.sweeps:
         assert isinstance(s, ThresholdSweep)
         t = Table(title=f"{s.name} pulse: threshold = i margin x {s.current_a:.4g} A, at least "
-                        f"{s.margin:g} kept; designed at {s.design_current_margin:g}")
+                        f"{s.margin:g} kept; designed at {s.design_current_margin:g}",
+                  caption=f"boost mJ at the energy corner ({_energy_corner(r, s.name)})")
         for col in ("i margin", "code", "time-out", "shortest ms", "longest ms", "seat ms", "boost mJ",
                     "recharge ms", "interval ms", "coil degC", "keeps", "by / fails"):
             t.add_column(col, justify="left" if col in ("keeps", "by / fails") else "right")
