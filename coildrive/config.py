@@ -1564,11 +1564,11 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                                    "eddy-current term on a flux-linkage curve (the release into the "
                                    "drooping bus with the converter drawing and the feed blocking is a "
                                    "linear coil's, a curve's or an eddy term's on a linear coil)")
-    elif armature is not None and coil.flux_current and hold.mode != "latch" and _boosted_curves_refusal(
-            coil, switch, freewheel, supply, hold, duty):
-        key, why = _boosted_curves_refusal(coil, switch, freewheel, supply, hold, duty)
-    elif hold.mode == "latch" and _boosted_latch_refusal(coil, switch, supply, armature, latch):
-        key, why = _boosted_latch_refusal(coil, switch, supply, armature, latch)
+    elif armature is not None and coil.flux_current and hold.mode != "latch" and (
+            refused := _boosted_curves_refusal(coil, switch, freewheel, supply, hold, duty)):
+        key, why = refused
+    elif hold.mode == "latch" and (refused := _boosted_latch_refusal(coil, switch, supply, armature, latch)):
+        key, why = refused
     elif hold.mode == "latch" and freewheel.type == "clamp" and supply.droops:
         key, why = "freewheel.type", ("a latching coil's pulses from the boost with a clamp across the switch "
                                       "on a drooping main supply (the clamp's draw on it after each pulse, with "
