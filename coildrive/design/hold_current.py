@@ -717,6 +717,7 @@ def _mode_result(drive: Drive, th: Thresholds, grid: CornerGrid, cm: CurrentMode
         t_lo, t_hi = span.min_frequency_temp_c, span.max_frequency_temp_c
         duties = (span.min_duty, span.max_duty)
         shortest = span.shortest_segment_s
+    fast = fast_ticks(drive, th)   # a mixed decay's fast part, counts (None without one)
     return CurrentModeResult(
         control=th.control, sense_position=drive.board.sense.position, code_current_a=th.lsb_a,
         lower_code=th.lower_code if hyst else None, lower_a=th.lower_a if hyst else None,
@@ -725,7 +726,7 @@ def _mode_result(drive: Drive, th: Thresholds, grid: CornerGrid, cm: CurrentMode
         band_a=th.upper_a - th.lower_a if hyst else None,
         off_time_s=None if hyst else th.off_time_s,
         off_time_target_s=None if hyst else th.off_time_target_s,
-        off_prescaler=None if hyst and fast_ticks(drive, th) is None else th.off_prescaler, off_ticks=None if hyst else th.off_ticks,
+        off_prescaler=None if hyst and fast is None else th.off_prescaler, off_ticks=None if hyst else th.off_ticks,
         sized_from_frequency=th.sized, sense_delay_s=th.delay_s,
         nominal_frequency_hz=nominal_frequency,
         min_frequency_hz=flo, min_frequency_corner=grid.label(k_lo), min_frequency_coil_temp_c=t_lo,
@@ -733,9 +734,8 @@ def _mode_result(drive: Drive, th: Thresholds, grid: CornerGrid, cm: CurrentMode
         allowed_min_frequency_hz=f_lo, allowed_max_frequency_hz=f_hi, allowed_max_source=f_src,
         min_duty=duties[0], max_duty=duties[1],
         shortest_segment_s=shortest, regulated_corners=int(np.sum(reg)),
-        corners=len(grid), off_fast_ticks=fast_ticks(drive, th),
-        fast_time_s=None if fast_ticks(drive, th) is None else (
-            th.off_time_s if hyst else fast_ticks(drive, th) * th.off_time_s / th.off_ticks))
+        corners=len(grid), off_fast_ticks=fast,
+        fast_time_s=None if fast is None else th.off_time_s if hyst else fast * th.off_time_s / th.off_ticks)
 
 
 def fast_ticks(drive: Drive, th: Thresholds) -> int | None:

@@ -75,7 +75,7 @@ from .boost import rise_time as boost_rise_time
 from .datasheet import derived_values
 from .envelope import supply_codes, table_index
 from .figures import adc_code, worst
-from .peak import _ticks, requirement
+from .peak import requirement
 from .regulation import table_supplies
 from .result import BoostResult, Check, Verdict
 from .supply import bus_at, model_of, rise_time, steady_current

@@ -100,7 +100,7 @@ def allowance_words(pull_in, rate: float) -> str:
     return "+ the driver's switch lag" if lag_governs(pull_in, rate) else "+1 tick"
 
 
-def _ticks(seconds: float, rate: float, lag: float = 0.0) -> int | None:
+def whole_ticks(seconds: float, rate: float, lag: float = 0.0) -> int | None:
     """Whole ticks for a phase of at least ``seconds`` however the tick falls (``ceil + 1``)
     and, run ``lag`` s short by the driver's switch (:func:`switch_lag`), still at least
     ``seconds``."""
@@ -141,8 +141,8 @@ def requirement(drive: Drive, t_pull: np.ndarray, t_force: np.ndarray, margin: f
     settle = drive.pull_in.settle_time if settle is None else settle
     tp = float(np.max(np.where(np.isnan(t_pull), np.inf, t_pull)))
     tf = float(np.max(np.where(np.isnan(t_force), np.inf, t_force)))
-    by_time = _ticks(tp * margin, rate, lag)
-    by_force = _ticks(tf + settle, rate, lag)
+    by_time = whole_ticks(tp * margin, rate, lag)
+    by_force = whole_ticks(tf + settle, rate, lag)
     if by_time is None:
         return None, None, by_force
     return max(by_time, by_force or 0), by_time, by_force
@@ -167,7 +167,7 @@ def plan_peak(drive: Drive, grid: CornerGrid, first: PointResults, entry_results
         # the time-out: the worst corner's longest peak x margin (design/boost.py)
         runs = _boost_runs(first)
         t_end = slowest_peak(drive, first.loop) if runs is None else runs.long_time.reshape(np.shape(first.supply))
-        ticks = by_time = _ticks(float(np.max(np.where(np.isnan(t_end), np.inf, t_end))) * drive.pull_in.margin,
+        ticks = by_time = whole_ticks(float(np.max(np.where(np.isnan(t_end), np.inf, t_end))) * drive.pull_in.margin,
                                  rate)
         by_force = None
     not_reached = None

@@ -40,7 +40,7 @@ import numpy as np
 
 from ..config import Drive
 from ..design.latch import LatchDesign, design_latch
-from ..design.peak import _ticks
+from ..design.peak import whole_ticks
 from ..errors import InputError
 from .latch_boost import ThresholdSweep, tune_boosted
 
@@ -160,7 +160,7 @@ def tune_latch(drive: Drive, margin: float | None = None) -> LatchTune:
             notes.append(f"the {p.name} pulse is not swept: its current is {p.not_reached}")
             continue
         m = p.margin if margin is None else margin
-        lowest = _ticks(p.worst_time_s, drive.board.tick.rate)
+        lowest = whole_ticks(p.worst_time_s, drive.board.tick.rate)
         steps = [_step(asked, p.name, n, m) for n in _lengths(lowest, p.ticks, q.ticks or p.ticks)]
         keeping = [s.ticks for s in steps if s.keeps]
         sweeps.append(PulseSweep(p.name, m, p.current_margin, p.settle_time_s, p.worst_time_s, p.worst_corner,
