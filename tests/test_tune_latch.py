@@ -107,20 +107,6 @@ def test_cli_table_and_the_latch_refusals(tmp_path):
     assert not (tmp_path / "p.png").exists()
 
 
-def test_a_compensated_pulse_table_is_refused_in_one_line(tmp_path):
-    lines = BRIDGE.read_text().splitlines()
-    at = next(k for k, ln in enumerate(lines) if ln.startswith("[pull_in]"))
-    text = "\n".join(lines[:at + 1] + ["compensate = true"] + lines[at + 1:]) + "\n"
-    text = text.replace('board = "bridge-m32-fast"',
-                        f'board = "{EXAMPLES.parents[1] / "boards" / "bridge-m32-fast.toml"}"')
-    path = tmp_path / "compensated.toml"
-    path.write_text(text)
-    assert load_drive(path).pull_in.compensate
-    res = runner.invoke(app, ["tune", str(path), "--header", str(tmp_path / "x.h")])
-    assert res.exit_code == 2 and "pull_in.compensate" in res.output, res.output
-    assert not (tmp_path / "x.h").exists()
-
-
 @pytest.fixture(scope="module")
 def valve_tune():
     drive = load_drive(VALVE)

@@ -49,7 +49,7 @@ def tune_command(
     prefix: str = typer.Option("COIL", "--prefix", help="Name prefix of the header's macros."),
     min_frequency: str = typer.Option("20 kHz", "--min-frequency", help="Lowest PWM frequency swept (default: the audible limit)."),
     max_frequency: Optional[str] = typer.Option(None, "--max-frequency", help="Highest PWM frequency swept (default: board timer.max_pwm_frequency, else 100 kHz)."),
-    margin: Optional[float] = typer.Option(None, "--margin", help="Factor >= 1 on the minimum hold current (hold.current; default 1). With --port: on the bench drop-out current (default: armature.current_margin). A latching coil: on the worst pulse times (default: pull_in.margin and reset.margin); its pulses from the boost: the least current_margin kept (default: each pulse's)."),
+    margin: Optional[float] = typer.Option(None, "--margin", help="Factor >= 1 on the minimum hold current (hold.current; default 1). With --port: on the bench drop-out current (default: armature.current_margin). A latching coil: on the worst pulse times (a supply-compensated table: on every entry's own; default: pull_in.margin and reset.margin); its pulses from the boost: the least current_margin kept (default: each pulse's)."),
     levels: int = typer.Option(8, "--levels", help="Hold-current levels swept upward from the target."),
     level_step: str = typer.Option("5 %", "--level-step", help='Step between levels, e.g. "5 %" or 0.05.'),
     max_ripple: Optional[str] = typer.Option(None, "--max-ripple", help='Ripple limit, peak-to-peak: "30 mA" or "20 %" of the target (default 20 %).'),

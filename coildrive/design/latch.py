@@ -88,12 +88,22 @@ class PulseTable:
     looked up like the peak's table (the last entry whose code is at or below the reading,
     the first below them all). ``design_supply_v``: where each entry is sized -- the lowest
     bus that can read its code (the divider at its tolerance end), the first entry at the
-    lowest supply the pulses are designed from; ``supply_v`` the entries' nominal buses."""
+    lowest supply the pulses are designed from; ``supply_v`` the entries' nominal buses.
+
+    Each entry's own worst corner (its design bus, the coil at its limit, the worst
+    tolerance end): ``worst_time_s`` the time to the pulse's current there (the armature's
+    seat with one), ``worst_corner`` that corner; ``force_time_s`` the longest time to
+    ``current_margin`` x the current; ``end_current_a`` the least current the entry's
+    shortest real pulse (one tick less) carries at the entry's corners."""
 
     supply_v: list[float]
     adc_codes: list[int]
     ticks: list[int]
     design_supply_v: list[float]
+    worst_time_s: list[float] = dataclasses.field(default_factory=list)
+    worst_corner: list[str] = dataclasses.field(default_factory=list)
+    force_time_s: list[float] = dataclasses.field(default_factory=list)
+    end_current_a: list[float] = dataclasses.field(default_factory=list)
 
 
 @dataclass(frozen=True)
@@ -367,15 +377,12 @@ def _pulse(drive: Drive, reset: bool, fixed: int | None = None) -> tuple[PulseRe
     short, long_ = (t_short, t_long) if table is None else table_lengths(drive, table, pts.supply)
     # energies of the longest pulse on a stiff bus (module docstring)
     v, r_on, ind = lp.v_on, lp.r_on, lp.inductance
+    # the end current on the bus the pulse runs from, the energies on the stiff bus
+    i_end = end_current(wd, lp, pts, pin if ticks else None, p_arm, short)
     if pin is not None and ticks:   # the pulse outlasts every seat time (margin >= 1)
-        # the end current on the bus the pulse runs from (a drooping one: its run again,
-        # to the shortest pulse's end), the energies on the stiff bus
-        i_end = (seat_run(wd, lp, pts, peak_time=short)[0].peak_end_current if droops else
-                 after_seat(pin, p_arm, short, v, r_on)[0])
         stiff = stiff_run(wd, lp, pts, pin, p_arm)
         i_top, q_on, s_on = after_seat(*stiff, long_, v, r_on)
     else:
-        i_end = rise_current_at(wd, lp, short)
         i_top, q_on, s_on = plain_pulse(lp, long_)
     rel = release_loop(wd, pts)
     t_zero = decay_time(0.0, i_top, rel.r_off, rel.v_off, ind)
@@ -661,7 +668,7 @@ def _table(drive: Drive, wd: Drive, coil, scale: float, current: float, cm: floa
     design_v[0] = min(design_v[0], drive.supply.min * scale)
     grid = list(itertools.product(design_v, (drive.thermal.max_coil_temp,), *_tolerances(drive, coil)))
     pts = Points(*(np.array(a, float) for a in zip(*grid)))
-    _, t_req, t_force, _, _ = _requirements(wd, pts, current, cm)
+    lp, t_req, t_force, pin, p_arm = _requirements(wd, pts, current, cm)
     m = len(codes)
     t_req, t_force = t_req.reshape(m, -1), t_force.reshape(m, -1)
     ticks = [requirement(drive, t_req[e], t_force[e], margin, settle)[0] for e in range(m)]
@@ -670,8 +677,16 @@ def _table(drive: Drive, wd: Drive, coil, scale: float, current: float, cm: floa
     # a higher entry never needs more than a lower one (the rise only quickens with the bus);
     # an entry whose current is never reached (none, above the lowest's) keeps the lowest's
     ticks = [t if t is not None else ticks[0] for t in ticks]
+    # each entry's margins at its own corners: its shortest real pulse (one tick less)
+    n = t_req.shape[1]
+    short = np.repeat((np.array(ticks, float) - 1.0) / drive.board.tick.rate, n)
+    i_end = end_current(wd, lp, pts, pin, p_arm, short).reshape(m, -1)
+    k = [worst(t_req[e]) for e in range(m)]
     return PulseTable([float(v) for v in volts], [int(c) for c in codes], [int(t) for t in ticks],
-                      [float(v) for v in design_v]), float(design_v[0])
+                      [float(v) for v in design_v], worst_time_s=[float(t_req[e, k[e]]) for e in range(m)],
+                      worst_corner=[pts.label(e * n + k[e]) for e in range(m)],
+                      force_time_s=[float(np.max(t_force[e])) for e in range(m)],
+                      end_current_a=[float(np.min(i_end[e])) for e in range(m)]), float(design_v[0])
 
 
 def table_lengths(drive: Drive, table: PulseTable, supply) -> tuple[np.ndarray, np.ndarray]:
@@ -834,6 +849,18 @@ def _opens(drive: Drive, pts: Points, t_trip, r: PulseResult) -> tuple[PulseResu
                     f"the catch trips at {r.current_a:.4g} A and the armature rests on the open stop "
                     f"{r.open_time_s * 1e3:.4g} ms after the reset pulse starts ({pts.label(k)})" if ok else
                     "the armature does not reach the open stop after the catch trips")
+
+
+def end_current(wd: Drive, lp, pts: Points, pin, p_arm, short) -> np.ndarray:
+    """Current (A) at the end of a pulse ``short`` s long (per point) through the winding
+    ``wd`` at the points: the rise (a drooping bus included), or with a seat run ``pin``
+    (params ``p_arm``; the pulse outlasting every seat time) the seated coil's on from it
+    -- on a drooping bus the seat run again, to that end."""
+    if pin is None:
+        return rise_current_at(wd, lp, short)
+    if wd.supply.droops:
+        return seat_run(wd, lp, pts, peak_time=short)[0].peak_end_current
+    return after_seat(pin, p_arm, short, lp.v_on, lp.r_on)[0]
 
 
 def rise_current_at(drive: Drive, lp, t) -> np.ndarray:

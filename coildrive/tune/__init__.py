@@ -10,7 +10,9 @@
 * ``latch``: a latching coil's offline sweep of its timed pulses' lengths (``coildrive tune
   LATCH.toml``; every step is the latch design with that length); ``latch_boost``: pulses
   from the boost, a sweep of each pulse's threshold ``current_margin`` instead (every step
-  the latch design at that margin); ``latch_report`` shows both.
+  the latch design at that margin); ``latch_table``: supply-compensated pulses, a sweep of
+  the time margin every entry of a pulse's table keeps (every step the latch design at that
+  margin); ``latch_report`` shows all three.
 
 Imports run one way: ``design``, ``bench`` and ``model`` below, ``cli`` above.
 """

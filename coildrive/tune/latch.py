@@ -24,8 +24,10 @@ always holds that length and the tick below it, so "shortest" is exact to the ti
 
 Pulses from the boost end at a current threshold, not after a time: their sweep steps each
 pulse's ``current_margin`` instead (:mod:`coildrive.tune.latch_boost`; ``sweeps`` then holds
-its :class:`~coildrive.tune.latch_boost.ThresholdSweep`). Not tuned here (refused in one
-line by :func:`check_latch_tunable`): a supply-compensated pulse table (``pull_in.compensate``).
+its :class:`~coildrive.tune.latch_boost.ThresholdSweep`). A supply-compensated pulse
+(``pull_in.compensate``) is a table of lengths against the supply reading: its sweep steps
+the time margin every entry keeps (:mod:`coildrive.tune.latch_table`; ``sweeps`` then holds
+its :class:`~coildrive.tune.latch_table.TableSweep`).
 
 Units: SI (s, J, A), temperatures in degC.
 """
@@ -41,8 +43,8 @@ import numpy as np
 from ..config import Drive
 from ..design.latch import LatchDesign, design_latch
 from ..design.peak import whole_ticks
-from ..errors import InputError
 from .latch_boost import ThresholdSweep, tune_boosted
+from .latch_table import TableSweep, sized_at, tune_table, with_margins
 
 #: Longest length swept, as a multiple of the designed length (our choice: past that the
 #: pulse only heats the coil).
@@ -93,31 +95,21 @@ class PulseSweep:
 @dataclass
 class LatchTune:
     """The result of :func:`tune_latch`: the file's design, one sweep per pulse (of its
-    length, or from the boost of its threshold's ``current_margin``), and the design that
+    length, from the boost of its threshold's ``current_margin``, of a supply-compensated
+    table's time margin), and the design that
     runs the recommended pulses (``recommended``: the header's source)."""
 
     design: LatchDesign
-    sweeps: list[PulseSweep] | list[ThresholdSweep]
+    sweeps: list[PulseSweep] | list[ThresholdSweep] | list[TableSweep]
     recommended: LatchDesign | None
     margin: float | None
     notes: list[str] = dataclasses.field(default_factory=list)
 
 
-def check_latch_tunable(drive: Drive) -> None:
-    """Raise :class:`InputError` (naming the key) for latch pulses this tuning does not
-    step: from a supply-compensated table."""
-    if drive.pull_in.compensate:
-        raise InputError(drive.source, "pull_in.compensate", "coildrive tune steps one fixed length per latch "
-                         "pulse; a supply-compensated pulse table is sized by coildrive design")
-
-
 def with_margin(drive: Drive, margin: float | None) -> Drive:
     """The drive with ``margin`` on both pulses' worst times (``pull_in.margin`` and
     ``reset.margin``; unchanged for ``None``)."""
-    if margin is None:
-        return drive
-    return dataclasses.replace(drive, pull_in=dataclasses.replace(drive.pull_in, margin=margin),
-                               latch=dataclasses.replace(drive.latch, reset_margin=margin))
+    return drive if margin is None else with_margins(drive, {"set": margin, "reset": margin})
 
 
 def _lengths(lowest: int, designed: int, sized: int) -> list[int]:
@@ -146,20 +138,22 @@ def tune_latch(drive: Drive, margin: float | None = None) -> LatchTune:
     """Sweep each pulse's length (module docstring); ``margin``: the time margin the
     recommendation keeps on both pulses (default: the file's). Pulses from the boost: the
     sweep of their thresholds, ``margin`` the least ``current_margin`` kept
-    (:func:`coildrive.tune.latch_boost.tune_boosted`)."""
-    check_latch_tunable(drive)
+    (:func:`coildrive.tune.latch_boost.tune_boosted`). Supply-compensated pulses: the sweep
+    of their tables' time margin (:func:`coildrive.tune.latch_table.tune_table`)."""
     if drive.supply.boosted:
         base, sweeps, recommended = tune_boosted(drive, margin)
         return LatchTune(base, sweeps, recommended, margin)
-    base = design_latch(drive)
-    asked = with_margin(drive, margin)   # its steps' checks hold them to the margin asked for
-    sized = design_latch(asked)          # the pulses the design sizes at that margin
+    if drive.pull_in.compensate:
+        base, sweeps, recommended, notes = tune_table(drive, margin)
+        return LatchTune(base, sweeps, recommended, margin, notes)
+    # its steps' checks hold them to the margin asked for; sized: the pulses the design sizes at it
+    base, margins, asked, sized = sized_at(drive, margin)
     sweeps, notes = [], []
     for p, q in zip(base.latch.pulses, sized.latch.pulses):
         if p.ticks is None:
             notes.append(f"the {p.name} pulse is not swept: its current is {p.not_reached}")
             continue
-        m = p.margin if margin is None else margin
+        m = margins[p.name]
         lowest = whole_ticks(p.worst_time_s, drive.board.tick.rate)
         steps = [_step(asked, p.name, n, m) for n in _lengths(lowest, p.ticks, q.ticks or p.ticks)]
         keeping = [s.ticks for s in steps if s.keeps]

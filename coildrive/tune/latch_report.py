@@ -10,6 +10,7 @@ from .. import __version__
 from ..jsondoc import document_head, json_ready
 from .latch import LatchTune
 from .latch_boost import ThresholdSweep
+from .latch_table import TableSweep
 
 
 #: The table's word for what governs the interval (the design's own phrase in the JSON).
@@ -23,6 +24,13 @@ def latch_tune_ok(r: LatchTune) -> bool:
     return r.recommended is not None and r.recommended.ok
 
 
+def swept(r: LatchTune) -> str:
+    """What the sweep steps: ``"current_margin"`` (pulses from the boost), ``"margin"`` (a
+    supply-compensated table's time margin) or ``"length"`` (timed pulses)."""
+    drive = r.design.drive
+    return "current_margin" if drive.supply.boosted else "margin" if drive.pull_in.compensate else "length"
+
+
 def latch_tune_dict(r: LatchTune) -> dict:
     """The ``tune --json`` document of a latching coil."""
     rec = r.recommended
@@ -30,7 +38,10 @@ def latch_tune_dict(r: LatchTune) -> dict:
     if rec is not None:
         recommendation = {p.name: {"ticks": p.ticks, "time_s": p.time_s,
                                    **({} if p.boost is None else {"current_margin": p.current_margin,
-                                                                  "threshold_code": p.boost.threshold_code})}
+                                                                  "threshold_code": p.boost.threshold_code}),
+                                   **({} if p.table is None else {"margin": p.margin, "table": {
+                                       "supply_v": p.table.supply_v, "adc_codes": p.table.adc_codes,
+                                       "ticks": p.table.ticks}})}
                           for p in rec.latch.pulses}
         recommendation.update(interval_s=rec.latch.interval_s, interval_ticks=rec.latch.interval_ticks,
                               hottest_coil_c=rec.latch.hottest_coil_c,
@@ -40,7 +51,7 @@ def latch_tune_dict(r: LatchTune) -> dict:
         "mode": "latch",
         "ok": latch_tune_ok(r),
         "margin": r.margin,
-        "swept": "current_margin" if r.design.drive.supply.boosted else "length",
+        "swept": swept(r),
         "tick_rate_hz": r.design.latch.tick_rate_hz,
         "pulses": [{**{k: v for k, v in dataclasses.asdict(s).items() if k != "steps"},
                     "steps": [dataclasses.asdict(x) for x in s.steps]} for s in r.sweeps],
@@ -55,17 +66,16 @@ def print_latch_tune(r: LatchTune) -> None:
     from rich.console import Console
 
     con = Console()
-    if r.design.drive.supply.boosted:
-        _print_thresholds(con, r)
-    else:
-        _print_lengths(con, r)
+    {"current_margin": _print_thresholds, "margin": _print_tables, "length": _print_lengths}[swept(r)](con, r)
     rec = r.recommended
     if rec is None:
         con.print("no recommendation: " + "; ".join(r.notes or ["no swept step keeps the margins"]))
         return
-    parts = ", ".join(f"{p.name} {p.ticks} ticks ({p.time_s * 1e3:.4g} ms)" if p.boost is None else
-                      f"{p.name} at {p.current_margin:g} x {p.current_a:.4g} A (code {p.boost.threshold_code}, "
-                      f"time-out {p.ticks} ticks)" for p in rec.latch.pulses)
+    parts = ", ".join(f"{p.name} at {p.current_margin:g} x {p.current_a:.4g} A (code {p.boost.threshold_code}, "
+                      f"time-out {p.ticks} ticks)" if p.boost is not None else
+                      f"{p.name} at margin {p.margin:g} ({p.table.ticks[0]}..{p.table.ticks[-1]} ticks, "
+                      f"{len(p.table.ticks)} entries)" if p.table is not None else
+                      f"{p.name} {p.ticks} ticks ({p.time_s * 1e3:.4g} ms)" for p in rec.latch.pulses)
     con.print(f"recommended: {parts}; pulse no faster than every {rec.latch.interval_s * 1e3:.4g} ms "
               f"({rec.latch.governed_by}); coil at most {rec.latch.hottest_coil_c:.4g} degC")
     if rec.failed:
@@ -141,3 +151,44 @@ def _print_thresholds(con, r: LatchTune) -> None:
         con.print(t)
         for why in sorted({x.refused for x in s.steps if x.refused}):
             con.print(f"refused at a lower margin: {why}")
+
+
+def _print_tables(con, r: LatchTune) -> None:
+    """The supply-compensated pulses' sweeps of their time margin (ticks: the table's first
+    and last entry, lowest supply first; t / i margin: the least over the entries,
+    each at its own worst corner; by / fails: what governs the interval, or the design's
+    failing checks), then each recommended table entry by entry."""
+    from rich.table import Table
+
+    rate = r.design.latch.tick_rate_hz
+    con.print(f"[bold]{r.design.drive.name}[/bold]: latching coil, supply-compensated pulse tables: the time "
+              f"margin on every entry swept (tick {1e3 / rate:.4g} ms)")
+    for s in r.sweeps:
+        assert isinstance(s, TableSweep)
+        t = Table(title=f"{s.name} pulse: {len(s.supply_v)} entries, each keeping {s.margin:g} x its own worst "
+                        f"time and {s.current_margin:g} x current for {s.settle_time_s * 1e3:.4g} ms; file "
+                        f"margin {s.design_margin:g}",
+                  caption=f"ticks: the first..last entry; t and i margin: the least over the entries, each at its "
+                          f"own worst corner; supply and copper mJ at the energy corner ({_energy_corner(r, s.name)})")
+        for col in ("margin", "ticks", "t margin", "i margin", "keeps", "supply mJ", "copper mJ", "interval ms",
+                    "coil degC", "by / fails"):
+            t.add_column(col, justify="left" if col in ("keeps", "by / fails") else "right")
+        for x in s.steps:
+            mark = " <" if x.margin == s.recommended_margin else ""
+            why = ", ".join(x.failed) if x.failed else SHORT.get(x.interval_governed_by, x.interval_governed_by)
+            t.add_row(f"{x.margin:.6g}{mark}", f"{x.ticks[0]}..{x.ticks[-1]}", f"{x.least_time_margin:.4g}",
+                      f"{x.least_current_margin:.4g}", "yes" if x.keeps else "no", f"{x.supply_j * 1e3:.4g}",
+                      f"{x.copper_j * 1e3:.4g}", f"{x.interval_s * 1e3:.4g}", f"{x.hottest_coil_c:.4g}", why)
+        con.print(t)
+        rec = next((x for x in s.steps if x.margin == s.recommended_margin), None)
+        if rec is None:
+            continue
+        e = Table(title=f"{s.name} pulse at margin {rec.margin:g}: the table the firmware looks up",
+                  caption="t / i margin at each entry's own worst corner: its sized-at bus, the coil at its limit")
+        for col in ("entry", "bus V", "code", "sized at V", "ticks", "ms", "t margin", "i margin"):
+            e.add_column(col, justify="right")
+        for k, (v, code, vd, n, tm, cm) in enumerate(zip(s.supply_v, s.adc_codes, s.design_supply_v, rec.ticks,
+                                                          rec.time_margins, rec.current_margins)):
+            e.add_row(str(k), f"{v:.4g}", str(code), f"{vd:.4g}", str(n), f"{n / rate * 1e3:.4g}", f"{tm:.4g}",
+                      f"{cm:.4g}")
+        con.print(e)
