@@ -165,11 +165,14 @@ def _print_tables(con, r: LatchTune) -> None:
               f"margin on every entry swept (tick {1e3 / rate:.4g} ms)")
     for s in r.sweeps:
         assert isinstance(s, TableSweep)
+        corners = sorted({x.energy_corner for x in s.steps})   # the longest entry's corner may move
+        where = (f"the energy corner ({corners[0]})" if len(corners) == 1 else
+                 "each step's energy corner (--json energy_corner: " + "; ".join(corners) + ")")
         t = Table(title=f"{s.name} pulse: {len(s.supply_v)} entries, each keeping {s.margin:g} x its own worst "
                         f"time and {s.current_margin:g} x current for {s.settle_time_s * 1e3:.4g} ms; file "
                         f"margin {s.design_margin:g}",
                   caption=f"ticks: the first..last entry; t and i margin: the least over the entries, each at its "
-                          f"own worst corner; supply and copper mJ at the energy corner ({_energy_corner(r, s.name)})")
+                          f"own worst corner; supply and copper mJ at {where}")
         for col in ("margin", "ticks", "t margin", "i margin", "keeps", "supply mJ", "copper mJ", "interval ms",
                     "coil degC", "by / fails"):
             t.add_column(col, justify="left" if col in ("keeps", "by / fails") else "right")
