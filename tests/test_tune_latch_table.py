@@ -191,11 +191,11 @@ def test_one_entrys_margins_against_solve_ivp(bridge):
                         events=reach, dense_output=True, rtol=1e-11, atol=1e-13)
         runs.append((sol.t_events[0][0], sol.sol))
     t_worst = max(t for t, _ in runs)
-    assert s.worst_time_s[e] == pytest.approx(t_worst, rel=1e-7)
+    assert s.worst_time_s[e] == pytest.approx(t_worst, rel=1e-9)
     for step in s.steps:
         short = (step.ticks[e] - 1) / 10e3
-        assert step.time_margins[e] == pytest.approx(short / t_worst, rel=1e-7)
-        assert step.current_margins[e] == pytest.approx(min(f(short)[0] for _, f in runs), rel=1e-7)
+        assert step.time_margins[e] == pytest.approx(short / t_worst, rel=1e-9)
+        assert step.current_margins[e] == pytest.approx(min(f(short)[0] for _, f in runs), rel=1e-9)
 
 
 def test_cli_json_and_header_of_the_recommended_tables(bridge, tmp_path):

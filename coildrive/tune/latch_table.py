@@ -134,7 +134,7 @@ def sized_at(drive: Drive, margin: float | None) -> tuple[LatchDesign, dict[str,
     return base, asked, at, design_latch(at)
 
 
-def keeps(p: PulseResult, margin: float, rate: float) -> bool:
+def entries_keep(p: PulseResult, margin: float, rate: float) -> bool:
     """Every entry of ``p``'s table: its shortest real pulse (one tick less at ``rate``
     Hz) at least ``margin`` x the entry's worst time and at least its force time + the
     settle time."""
@@ -176,7 +176,7 @@ def _step(drive: Drive, name: str, m: float, asked: float) -> TableStep:
     ok = next(c.ok for c in d.checks if c.name == f"{name}_pulse")
     return TableStep(margin=m, ticks=list(t.ticks), time_margins=tm, current_margins=cm,
                      least_time_margin=min(tm), least_current_margin=min(cm), pulse_ok=ok,
-                     keeps=ok and keeps(p, asked, rate),
+                     keeps=ok and entries_keep(p, asked, rate),
                      supply_j=p.supply_j, copper_j=p.copper_j, energy_corner=p.energy_corner,
                      interval_s=d.latch.interval_s,
                      interval_governed_by=d.latch.governed_by, hottest_coil_c=d.latch.hottest_coil_c,
