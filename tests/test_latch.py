@@ -279,3 +279,38 @@ def test_simulate_plot_of_a_latch_writes_a_png_and_nothing_on_bad_input(tmp_path
     assert len(res.stderr.strip().splitlines()) == 1 and "Traceback" not in res.output, res.stderr
     assert not csv.exists() and not png.exists()
 
+
+
+def test_pulse_heat_is_the_most_copper_over_the_corners():
+    # heat_j (the interval's and the cycle's) is the most copper heat one pulse leaves over
+    # every corner, not the energy corner's copper_j. Worked by hand for the bridge's pulses
+    # (boards/bridge-m32-fast: two 40 mohm switches on, the 0.1 ohm sense inline, the fast
+    # decay through two 0.8 V body diodes into the bus): the RL step's int i^2 dt =
+    # I^2 (t - 2 tau (1 - e^(-t/tau)) + tau/2 (1 - e^(-2t/tau))), then L di/dt = -(E + R i)
+    # from the top to zero, int i^2 dt = a^2 tau/2 (1 - e^(-2 t_z/tau)) - 2 a b tau
+    # (1 - e^(-t_z/tau)) + b^2 t_z with b = E/R, a = I_0 + b, t_z = tau ln(a / b)
+    # (first-order circuits, e.g. Hayt & Kemmerly); R(T) by IEC 60028 (0.00393 /K).
+    drive = load_drive(BRIDGE)
+    d = design_latch(drive)
+    rate = drive.board.tick.rate
+    for p in d.latch.pulses:
+        t = p.ticks / rate
+        heats = []
+        for v in (drive.supply.min, drive.supply.max):
+            for temp in (drive.ambient.min, drive.thermal.max_coil_temp):
+                for rf in (0.93, 1.07):
+                    for lf in (0.85, 1.15):
+                        r_coil = 4.5 * (1 + 0.00393 * (temp - 20)) * rf
+                        ind, r_on, r_off = 0.015 * lf, r_coil + 2 * 0.04 + 0.1, r_coil + 0.1
+                        i_inf, tau = v / r_on, ind / r_on
+                        on = i_inf**2 * (t - 2 * tau * (1 - math.exp(-t / tau)) + tau / 2 * (1 - math.exp(-2 * t / tau)))
+                        i0 = i_inf * (1 - math.exp(-t / tau))
+                        b = (v + 1.6) / r_off
+                        a, tau = i0 + b, ind / r_off
+                        tz = tau * math.log(a / b)
+                        off = (a * a * tau / 2 * (1 - math.exp(-2 * tz / tau)) - 2 * a * b * tau * (1 - math.exp(-tz / tau))
+                               + b * b * tz)
+                        heats.append(r_coil * (on + off))
+        assert p.heat_j == pytest.approx(max(heats), rel=1e-9), p.name
+        assert p.heat_j >= p.copper_j
+    assert d.latch.pulse_heat_j == max(p.heat_j for p in d.latch.pulses)

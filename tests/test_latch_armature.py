@@ -253,3 +253,32 @@ def test_check_predicts_the_seated_end_current(bolt):
     got = predict_pulse(d, "set", 12.0, 20.0, 0.001, 0.001)["end_current_a"]
     _set_pulse_reference(drive, 12.0, 20.0, 1.0, 1.0, p.time_s)
     assert got == pytest.approx(_set_pulse_reference.i_top, rel=1e-5), "vs scipy solve_ivp (DOP853)"
+
+
+def test_force_margin_on_the_moving_run(bolt):
+    # At pull_in.margin 1.2 the seat x margin is shorter than the time the moving run needs
+    # to carry current_margin x pull_in.current, so the force margin sets the set pulse: the
+    # open-armature rise runs ahead of the real current (the closing gap's back-EMF and the
+    # larger seated inductance), so the design searches the ticks on the moving run. Checked
+    # against scipy solve_ivp (DOP853) of the circuit and armature written afresh, at the
+    # four tolerance ends of the lowest supply with the coil at its limit: the shortest real
+    # pulse carries the current everywhere, one tick less does not somewhere.
+    import dataclasses
+
+    drive, _ = bolt
+    drive = dataclasses.replace(drive, pull_in=dataclasses.replace(drive.pull_in, margin=1.2))
+    d = design_latch(drive)
+    p = next(p for p in d.latch.pulses if p.name == "set")
+    check = next(c for c in d.checks if c.name == "set_pulse")
+    assert check.ok and p.governed_by == "force margin", check.detail
+    rate, need = drive.board.tick.rate, p.force_current_a
+    ends = {}
+    for t in ((p.ticks - 1) / rate, (p.ticks - 2) / rate):
+        ends[t] = []
+        for rf, lf in ((0.93, 0.9), (0.93, 1.1), (1.07, 0.9), (1.07, 1.1)):
+            _set_pulse_reference(drive, 10.8, 130.0, rf, lf, p.time_s, t_short=t)
+            ends[t].append(_set_pulse_reference.i_short)
+    short, shorter = ends.values()
+    assert min(short) >= need * (1 - 1e-6), "the shortest pulse carries the force current (solve_ivp)"
+    assert min(short) == pytest.approx(p.end_current_a, rel=1e-5), "end current vs solve_ivp"
+    assert min(shorter) < need, "one tick less would not (solve_ivp): the search's least length"

@@ -85,7 +85,8 @@ def test_cli_json_and_header_of_the_recommended_pulses(tmp_path):
     doc = json.loads(res.stdout)
     assert doc["mode"] == "latch" and doc["ok"] and doc["margin"] == 1.2
     rec = doc["recommendation"]
-    assert rec["set"]["ticks"] == 102 < design_latch(load_drive(BOLT)).latch.pulses[0].ticks
+    # (the force margin on the moving run sets it at 1.2: tests/test_latch_armature.py)
+    assert rec["set"]["ticks"] == 112 < design_latch(load_drive(BOLT)).latch.pulses[0].ticks
     assert [p["recommended_ticks"] for p in doc["pulses"]] == [rec["set"]["ticks"], rec["reset"]["ticks"]]
     text = out.read_text()
     assert f"#define COIL_SET_PULSE_TICKS               {rec['set']['ticks']}U" in text

@@ -152,6 +152,11 @@ class PulseResult:
     armature at rest on the seat (at ``seat_corner``); the reset pulse's ``open_time_s`` the
     latest time from its start to the armature at rest on the open stop (the catch trips
     at ``current_a``, then spring and load open it). ``None`` / 0 without an armature.
+
+    ``heat_j``: the most copper heat one pulse leaves in the coil over every corner (pulse
+    and decay) -- what the coil-temperature interval and the on/off cycle take; ``copper_j``
+    is the energy corner's, which with a supply-compensated table (a longer pulse at a
+    lower bus) or a moving armature need not be the most.
     """
 
     name: str
@@ -194,6 +199,7 @@ class PulseResult:
     boost_j: float = 0.0
     boost: BoostResult | None = None
     main_supply_j: float = 0.0
+    heat_j: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -344,6 +350,9 @@ def _pulse(drive: Drive, reset: bool, fixed: int | None = None) -> tuple[PulseRe
         return _boosted(drive, wd, pts, name, winding, switches, current, margin, cm)
     lp, t_req, t_force, pin, p_arm = _requirements(wd, pts, current, cm)
     ticks, by_time, by_force = requirement(drive, t_req, t_force, margin, settle)
+    if pin is not None and ticks is not None:   # the force margin on the moving run's current
+        ticks = by_force = int(seated_force_ticks(drive, wd, lp, pts, pin, p_arm, cm * current, settle,
+                                                  np.array([ticks]), np.zeros(pts.supply.shape, int))[0]) or None
     rate = drive.board.tick.rate
     k_req = worst(t_req)
     checks = []
@@ -471,7 +480,8 @@ def _pulse(drive: Drive, reset: bool, fixed: int | None = None) -> tuple[PulseRe
         worst_time_s=float(t_req[k_req]), worst_corner=pts.label(k_req), force_current_a=cm * current,
         force_time_s=float(np.max(t_force)), governed_by=governed,
         end_current_a=float(np.min(i_end)) if ticks else 0.0, not_reached=not_reached,
-        supply_j=float(supply_e[k_e]), copper_j=float(copper[k_e]), switch_sense_j=float(sw_sense[k_e]),
+        supply_j=float(supply_e[k_e]), copper_j=float(copper[k_e]), heat_j=float(np.max(copper)),
+        switch_sense_j=float(sw_sense[k_e]),
         stored_j=float(np.broadcast_to(stored, supply_e.shape)[k_e]), table=table,
         freewheel_j=float(fw[k_e]), returned_j=float(returned[k_e]), energy_corner=pts.label(k_e),
         decay_time_s=float(np.max(time_to_zero(wd, lp, rel, i_top, fast) if t_zero_bus is None else t_zero_bus)),
@@ -493,7 +503,7 @@ def _pulse(drive: Drive, reset: bool, fixed: int | None = None) -> tuple[PulseRe
                   f"need: the shortest ({t_short * 1e3:.4g} ms) carries {result.end_current_a:.4g} A at the "
                   "worst corner")
     elif table is None:
-        ok = ticks is not None
+        ok = ticks is not None and result.end_current_a >= cm * current * (1 - 1e-9)
         detail = (f"{name} pulse {ticks} ticks ({t_long * 1e3:.4g} ms, {governed}): the shortest "
                   f"({t_short * 1e3:.4g} ms) carries {result.end_current_a:.4g} A >= "
                   f"{cm:g} x {current:.4g} A at the worst corner")
@@ -621,7 +631,7 @@ def _boosted(drive: Drive, wd: Drive, pts: Points, name: str, winding: str, swit
         worst_time_s=float(t_req[k_req]), worst_corner=pts.label(k_req), force_current_a=cm * current,
         force_time_s=float(np.max(boost_rise_time(wd, lp, cm * current, force_coil))),
         governed_by="current threshold" if reached else "", end_current_a=b.threshold_a if reached else 0.0,
-        not_reached=not_reached, supply_j=e["supply_j"], copper_j=e["copper_j"],
+        not_reached=not_reached, supply_j=e["supply_j"], copper_j=e["copper_j"], heat_j=e["heat_j"],
         switch_sense_j=e["switch_sense_j"], freewheel_j=e["freewheel_j"], returned_j=e["returned_j"],
         boost_j=e["boost_j"], eddy_j=e["eddy_j"], main_supply_j=e["main_supply_j"],
         stored_j=e["stored_j"], energy_corner=pts.label(e["k"]) + (", the boost at its highest" if e["high"]
@@ -677,8 +687,14 @@ def _table(drive: Drive, wd: Drive, coil, scale: float, current: float, cm: floa
     # a higher entry never needs more than a lower one (the rise only quickens with the bus);
     # an entry whose current is never reached (none, above the lowest's) keeps the lowest's
     ticks = [t if t is not None else ticks[0] for t in ticks]
-    # each entry's margins at its own corners: its shortest real pulse (one tick less)
     n = t_req.shape[1]
+    if pin is not None:   # each entry's force margin on the moving run's current
+        ticks = [int(t) for t in seated_force_ticks(drive, wd, lp, pts, pin, p_arm, cm * current, settle,
+                                                    np.array(ticks), np.repeat(np.arange(m), n))]
+        if not ticks[0]:
+            return None, float(design_v[0])
+        ticks = [t or ticks[0] for t in ticks]
+    # each entry's margins at its own corners: its shortest real pulse (one tick less)
     short = np.repeat((np.array(ticks, float) - 1.0) / drive.board.tick.rate, n)
     i_end = end_current(wd, lp, pts, pin, p_arm, short).reshape(m, -1)
     k = [worst(t_req[e]) for e in range(m)]
@@ -863,6 +879,45 @@ def end_current(wd: Drive, lp, pts: Points, pin, p_arm, short) -> np.ndarray:
     return after_seat(pin, p_arm, short, lp.v_on, lp.r_on)[0]
 
 
+def seated_force_ticks(drive: Drive, wd: Drive, lp, pts: Points, pin, p_arm, need: float, settle: float,
+                       ticks: np.ndarray, group: np.ndarray) -> np.ndarray:
+    """Per group of points (``group``: each point's index into ``ticks``), the fewest
+    ticks, at least ``ticks``, whose shortest real pulse (one tick less) less ``settle`` s
+    carries ``need`` A at every point of the group on the moving armature's run and the
+    seated coil after it (:func:`end_current`); 0 where the seated coil's steady current
+    stays below it. ``ticks`` are sized from the time margin on the seat and the force
+    margin on the open-armature rise, which runs ahead of the moving run's current (the
+    closing gap's back-EMF and the larger seated inductance hold it back), so they are
+    where the search starts: up by doubling steps, then bisection -- one run over every
+    point per step."""
+    rate = drive.board.tick.rate
+    groups = len(ticks)
+    never = np.bincount(group, steady_current(wd, lp) < need, minlength=groups) > 0
+
+    seat = np.asarray(pin.seat_time, float)
+
+    def carries(n: np.ndarray) -> np.ndarray:
+        t = (n[group] - 1.0) / rate - settle
+        # (before the seat the run is read at the seat: the pulse outlasts every seat time)
+        i = end_current(wd, lp, pts, pin, p_arm, np.where(np.isfinite(seat), np.maximum(t, seat), t))
+        return np.bincount(group, i < need * (1.0 - 1e-12), minlength=groups) == 0
+
+    lo = np.asarray(ticks, int)
+    ok = carries(lo) | never
+    hi, step = lo.copy(), np.ones(groups, int)
+    while not ok.all():   # double past the first length that carries it
+        lo = np.where(ok, lo, hi)
+        hi = np.where(ok, hi, hi + step)
+        step *= 2
+        ok = ok | carries(hi)
+    lo = np.where(hi > np.asarray(ticks, int), lo, hi - 1)
+    while np.any(hi - lo > 1):   # the least length that carries it: lo fails, hi carries
+        mid = np.where(hi - lo > 1, (lo + hi) // 2, hi)
+        good = carries(mid)
+        hi, lo = np.where(good, mid, hi), np.where(good, lo, mid)
+    return np.where(never, 0, hi)
+
+
 def rise_current_at(drive: Drive, lp, t) -> np.ndarray:
     """Current (A) ``t`` s into a pulse at the points of ``lp`` (a drooping bus included)."""
     from .supply import rise_current as bus_rise
@@ -880,7 +935,7 @@ def design_latch(drive: Drive, fixed: dict[str, int] | None = None) -> LatchDesi
         pulses.append(p)
         checks += c
     th = drive.thermal
-    heat = max(p.copper_j for p in pulses)
+    heat = max(p.heat_j for p in pulses)
     limit = th.max_coil_temp - drive.ambient.max
     rise = heat / th.capacity if th.capacity > 0 else 0.0
     if th.resistance > 0:
@@ -937,7 +992,7 @@ def _cycle(drive: Drive, pulses: list[PulseResult], interval: float) -> tuple[La
     du, th = drive.duty, drive.thermal
     by = {p.name: p for p in pulses}
     if th.resistance > 0:
-        rs, rr = (float(x) for x in latch_model.cycle_rises(by["set"].copper_j, by["reset"].copper_j,
+        rs, rr = (float(x) for x in latch_model.cycle_rises(by["set"].heat_j, by["reset"].heat_j,
                                                             du.on_time, du.off_time, th.capacity,
                                                             th.time_constant))
     else:

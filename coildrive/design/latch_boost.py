@@ -280,14 +280,15 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult, ends: dict | None
     armature's, the remainder; 0 without ``ends``), ``main_supply_j`` what the main supply gives in a clamp's decay (``V_main Q_d``; 0
     for the other paths), and ``k`` the point, ``high`` the side;
     ``decay_time_s`` the longest time to zero (of the terminal current) after a pulse,
-    ``end_current_a`` the highest (terminal) current it turns off and ``net_j`` the most
-    the boost net gives (drawn less returned; over both sides). ``ends``: a moving
+    ``end_current_a`` the highest (terminal) current it turns off, ``net_j`` the most
+    the boost net gives (drawn less returned) and ``heat_j`` the most copper heat (over
+    both sides). ``ends``: a moving
     armature's pulse ends (:attr:`ArmaturePulse.ends`; a linear coil on one switch), else
     the still coil's closed form."""
     trip = b.trip_max_a
     bridge = full_bridge(wd)
     r_b = wd.supply.boost_resistance
-    best, t_zero_max, i_max, net_max = None, 0.0, 0.0, 0.0
+    best, t_zero_max, i_max, net_max, heat_max = None, 0.0, 0.0, 0.0, 0.0
     for high in (False, True):
         if ends is None:
             bb = boost.boost_side(wd, lp, lp.inductance, high)
@@ -341,7 +342,8 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult, ends: dict | None
         t_zero_max = max(t_zero_max, float(np.max(t_zero)))
         i_max = max(i_max, float(np.max(i_end)))
         net_max = max(net_max, float(np.max(drawn - returned)))
-    return {**best, "decay_time_s": t_zero_max, "end_current_a": i_max, "net_j": net_max}
+        heat_max = max(heat_max, float(np.max(parts["copper_j"])))
+    return {**best, "decay_time_s": t_zero_max, "end_current_a": i_max, "net_j": net_max, "heat_j": heat_max}
 
 
 def return_decay(wd: Drive, rel, i0, v_c, c):

@@ -125,8 +125,12 @@ def _step(drive: Drive, name: str, ticks: int, margin: float) -> PulseStep:
     d = design_latch(drive, {name: ticks})
     p = next(x for x in d.latch.pulses if x.name == name)
     time_margin = p.shortest_s / p.worst_time_s if p.worst_time_s > 0 else math.inf
+    # the force margin: the open-armature rise's time with settle, and (a moving armature's
+    # current lags that rise) the design's own check on the moving run's current
     keeps = (p.shortest_s >= margin * p.worst_time_s * (1 - 1e-12)
-             and p.shortest_s >= (p.force_time_s + p.settle_time_s) * (1 - 1e-12))
+             and p.shortest_s >= (p.force_time_s + p.settle_time_s) * (1 - 1e-12)
+             and p.end_current_a >= p.force_current_a * (1 - 1e-9)
+             and next(c for c in d.checks if c.name == f"{name}_pulse").ok)
     return PulseStep(ticks=ticks, time_s=p.time_s, shortest_s=p.shortest_s, time_margin=time_margin,
                      current_margin=p.end_current_a / p.current_a, end_current_a=p.end_current_a, keeps=keeps,
                      supply_j=p.supply_j, copper_j=p.copper_j, interval_s=d.latch.interval_s,

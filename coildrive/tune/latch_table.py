@@ -31,10 +31,8 @@ force time + settle time, and the design's own ``{name}_pulse`` check passes (th
 each corner may read carries ``current_margin`` x the current at its shortest). The
 recommendation is the lowest stepped margin that keeps them: its table is the design's own
 at the margin asked for (the tests check it every entry, to the tick), and its design the
-header's source. Where the table sized at the margin asked for fails that check (a moving
-armature: its current dips as it closes, and the sizing takes the seat time and the open
-coil's rise), the lowest margin that passes is bisected to ``RESOLUTION`` and stepped with
-the one just below it, so that recommendation is exact to the tick too (a note says so).
+header's source. (With a moving armature the design sizes each entry on the moving run's
+current, which lags the open coil's rise: :func:`coildrive.design.latch.seated_force_ticks`.)
 
 Units: SI (s, J, A), temperatures in degC.
 """
@@ -55,9 +53,6 @@ from ..design.latch import LatchDesign, PulseResult, design_latch
 LONGEST = 3.0
 #: Margins stepped per pulse besides the file's, the asked one and the one a tick short.
 STEPS = 12
-#: How finely the lowest margin whose design passes its pulse check is bisected (a margin
-#: as a file would write it).
-RESOLUTION = 1e-6
 
 
 @dataclass(frozen=True)
@@ -183,27 +178,6 @@ def _step(drive: Drive, name: str, m: float, asked: float) -> TableStep:
                      design_ok=d.ok, failed=[c.name for c in d.failed])
 
 
-def _refined(steps: list[TableStep], drive: Drive, name: str, asked: float) -> list[TableStep]:
-    """``steps`` with, where the design's ``{name}_pulse`` check fails at the margin asked for
-    (a moving armature: the current dips as it closes, so a table sized by the seat time
-    and the open coil's rise may end below ``current_margin`` x the current) and passes at
-    a higher step, the lowest margin at which it passes and the one just below, bisected
-    to ``RESOLUTION`` (the check only turns from failing to passing as the entries
-    lengthen with the margin)."""
-    at = next(x for x in steps if x.margin == asked)
-    above = [x for x in steps if x.margin > asked and x.pulse_ok]
-    if at.pulse_ok or not above:
-        return steps
-    hi = above[0]
-    lo = max((x for x in steps if x.margin < hi.margin and not x.pulse_ok), key=lambda x: x.margin)
-    while hi.margin - lo.margin > RESOLUTION:
-        mid = _step(drive, name, math.ceil((lo.margin + hi.margin) / 2 / RESOLUTION) * RESOLUTION, asked)
-        if mid.margin >= hi.margin:
-            break
-        lo, hi = (lo, mid) if mid.pulse_ok else (mid, hi)
-    return sorted({x.margin: x for x in [*steps, lo, hi]}.values(), key=lambda x: x.margin)
-
-
 def tune_table(drive: Drive, margin: float | None) -> tuple[LatchDesign, list[TableSweep], LatchDesign | None,
                                                             list[str]]:
     """The file's design, one :class:`TableSweep` per compensated pulse (module
@@ -216,7 +190,7 @@ def tune_table(drive: Drive, margin: float | None) -> tuple[LatchDesign, list[Ta
             notes.append(f"the {p.name} pulse is not swept: its current is {q.not_reached}")
             continue
         ms = _margins(asked[p.name], p.margin, tick_short(q, sized.latch.tick_rate_hz))
-        steps = _refined([_step(others, p.name, m, asked[p.name]) for m in ms], others, p.name, asked[p.name])
+        steps = [_step(others, p.name, m, asked[p.name]) for m in ms]
         keeping = [s for s in steps if s.keeps]
         rec = keeping[0] if keeping else None
         t = q.table
@@ -227,12 +201,7 @@ def tune_table(drive: Drive, margin: float | None) -> tuple[LatchDesign, list[Ta
         return base, sweeps, None, notes
     recommended = design_latch(with_margins(drive, {s.name: s.recommended_margin for s in sweeps}))
     for s, p, q in zip(sweeps, recommended.latch.pulses, sized.latch.pulses):
-        failing = next(c for c in sized.checks if c.name == f"{s.name}_pulse")
-        if p.table.ticks != q.table.ticks and not failing.ok:
-            notes.append(f"the {s.name} table sized at margin {s.margin:g} fails {failing.name} (its shortest "
-                         f"pulses end below current_margin x the current); the lowest margin whose table passes "
-                         f"is {s.recommended_margin:g} (bisected to {RESOLUTION:g}), which the header uses")
-        elif p.table.ticks != q.table.ticks:   # the sweep and the design size the same rule
+        if p.table.ticks != q.table.ticks:   # the sweep and the design size the same rule
             notes.append(f"the {s.name} table at margin {s.recommended_margin:g} differs from the design's at "
                          f"{s.margin:g}; the header uses the one at {s.recommended_margin:g}")
         elif s.recommended_margin < s.margin:
