@@ -1452,7 +1452,8 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
     line where it is not on the seat when the current reaches the threshold,
     :func:`coildrive.design.latch_boost.armature_pulse`; the main bus sees only the
     converter's recharge of the run's energy), an eddy term on the set winding too (from a
-    boost capacitor: its loss is a state of that run)."""
+    boost capacitor its loss is a state of that run; from an ideal boost it follows from the
+    run's own integrals: :func:`coildrive.model.armature_boost.run_eddy_loss`)."""
     if switch.topology == "full_bridge" and not supply.boost_capacitance > 0:
         return "supply.boost_capacitance", ("a latching coil on a full bridge from an ideal boost (each fast "
                                             "decay returns into the boost capacitor: give its capacitance)")
@@ -1468,10 +1469,6 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
     if armature is not None and reset is not None and reset.eddy_resistance:
         return "reset_coil.eddy_resistance", ("a latching coil with a moving armature from the boost with an "
                                               "eddy-current term on the reset winding (the set winding's only)")
-    if armature is not None and coil.eddy_resistance and not supply.boost_capacitance > 0:
-        return "supply.boost_capacitance", ("a latching coil with a moving armature and an eddy-current term "
-                                            "from an ideal boost (the set pulse's eddy loss is followed on a "
-                                            "boost capacitor's run: give its capacitance)")
     if latch is not None and latch.reset_settle_time > 0:
         return "reset.settle_time", ("a reset settle time (each pulse from the boost ends at its current "
                                      "threshold, not at a time after it)")
@@ -1604,7 +1601,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, or a "
                          "linear coil on a full bridge with a boost capacitor; a stiff or a "
                          "drooping main supply (a clamp on a stiff one), no reset settle_time; with [armature] a "
-                         "linear coil (an eddy term on the set winding from a boost capacitor too), seated by the "
+                         "linear coil (an eddy term on the set winding too), seated by the "
                          "set pulse's threshold")
 
 

@@ -74,11 +74,13 @@ seated coil's closed form from the boost capacitor
 energy ``1/2 C (V_b^2 - u^2)`` and ``int i^2 dt`` are the run's. The balance above then has
 one more term, the armature's (``armature_j``: the spring's and the load's work, the
 damping's heat and the seat's impact), its remainder. With an eddy term on the set winding
-(from a boost capacitor) the run is the branch's (the force on the magnetising current, the
-threshold and ``int i^2 dt`` on the terminal current, the switch turning that off) and
+the run is the branch's (the force on the magnetising current, the threshold and ``int i^2
+dt`` on the terminal current, the switch turning that off); from a boost capacitor it
 carries the eddy resistance's loss as a state of its own
-(:func:`coildrive.model.armature_runs.pull_in`'s ``eddy_loss``), so ``E_eddy`` is computed,
-that plus the release's, and the remainder stays the mechanical work. On a drooping main
+(:func:`coildrive.model.armature_runs.pull_in`'s ``eddy_loss``), from an ideal boost the
+loss follows from the run's own integrals (the branch sees ``V_b - R i_t``:
+:func:`coildrive.model.armature_boost.run_eddy_loss`), so ``E_eddy`` is computed, that plus
+the release's, and the remainder stays the mechanical work. On a drooping main
 supply the converter's draw after the set pulse is the run's energy (:func:`main_bus`).
 """
 
@@ -164,7 +166,7 @@ def armature_pulse(wd: Drive, lp, l_factor, label, thr: tuple[float, int, float]
     (:func:`pulse_threshold`): the module docstring's runs, refused in one line where the
     armature is not at rest on the seat when the current reaches the threshold itself."""
     from ..model.armature import SEATED, TRIPPED, params_from_loop
-    from ..model.armature_boost import boost_energy, seated_on
+    from ..model.armature_boost import boost_energy, run_eddy_loss, seated_on
     from ..model.armature_runs import pull_in
     from .boost_armature import BoostRuns, boosted_params
 
@@ -175,20 +177,23 @@ def armature_pulse(wd: Drive, lp, l_factor, label, thr: tuple[float, int, float]
     first, ends, out = {}, {}, {}
     for high in (False, True):
         pb = boosted_params(wd, p, high)
-        pin = pull_in(pb, trip=i_th, eddy_loss=eddy)
+        carry = eddy and pb.droops   # (an ideal boost's loss follows from q and sq: run_eddy_loss)
+        pin = pull_in(pb, trip=i_th, eddy_loss=carry)
         open_ = np.flatnonzero(pin.status == TRIPPED)
         if open_.size:
             _refuse(wd, pb, pin, int(open_[np.argmin(pin.trip_time[open_])]), label, high, i_th)
         first[high] = pin
-        end = pull_in(pb, trip=i_trip, eddy_loss=eddy) if i_trip > i_th else pin
+        end = pull_in(pb, trip=i_trip, eddy_loss=carry) if i_trip > i_th else pin
         hit = np.isfinite(end.trip_time)
+        t_end = np.where(hit, end.trip_time + dt, np.inf)
         y = seated_on(pb, np.where(hit, end.trip_state, 0.0), dt)
         u = y[5] if pb.droops else pb.v_on
         i_top = np.where(hit, pb.current(y[0], 0.0), 0.0)
         i_end = np.where(hit, pb.terminal(i_top, True, bus=u), 0.0)   # (what the switch turns off)
         drawn = np.where(hit, boost_energy(pb, y), 0.0)
-        ends[high] = (i_top, i_end, np.where(hit, y[4], 0.0), drawn, np.where(hit, y[6], 0.0) if eddy else 0.0 * drawn)
-        out[high] = (np.where(hit, end.trip_time + dt, np.inf), i_end, np.where(hit, u, np.nan), drawn)
+        loss = np.where(hit, run_eddy_loss(pb, np.where(hit, t_end, 0.0), y), 0.0) if eddy else 0.0 * drawn
+        ends[high] = (i_top, i_end, np.where(hit, y[4], 0.0), drawn, loss)
+        out[high] = (t_end, i_end, np.where(hit, u, np.nan), drawn)
     seat = {h: np.where(first[h].status == SEATED, first[h].seat_time, np.inf) for h in (False, True)}
     seat_high = seat[True] > seat[False]
     low, high_ = out[False], out[True]

@@ -585,3 +585,16 @@ def boost_energy(p_boost: ArmatureParams, state) -> np.ndarray:
     if p_boost.droops:
         return 0.5 * p_boost.capacitance * (p_boost.v_on**2 - state[5]**2)
     return p_boost.v_on * q
+
+
+def run_eddy_loss(p_boost: ArmatureParams, t, state) -> np.ndarray:
+    """J the eddy resistance has taken at a run's ``state`` ``t`` s after switch-on, the
+    switch on throughout (rows of the run; ``p_boost`` with an eddy term): from a capacitor
+    the seventh row (:func:`~coildrive.model.armature_runs.pull_in`'s ``eddy_loss``); from
+    an ideal boost, whose stiff ``V_b`` puts ``V_b - R_on i_t`` across the branch at every
+    instant, in flight or at rest, ``int (V_b - R_on i_t)^2 dt / R_e`` = ``(V_b^2 t - 2 V_b
+    R_on q + R_on^2 sq) / R_e`` from the run's own ``q``, ``sq`` (the terminal current's)."""
+    if p_boost.droops:
+        return state[6]
+    v, r = p_boost.v_on, p_boost.r_on
+    return (v * v * np.asarray(t, float) - 2.0 * v * r * state[3] + r * r * state[4]) / p_boost.eddy
