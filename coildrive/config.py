@@ -1453,7 +1453,9 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
     :func:`coildrive.design.latch_boost.armature_pulse`; the main bus sees only the
     converter's recharge of the run's energy), an eddy term on the set winding too (from a
     boost capacitor its loss is a state of that run; from an ideal boost it follows from the
-    run's own integrals: :func:`coildrive.model.armature_boost.run_eddy_loss`)."""
+    run's own integrals: :func:`coildrive.model.armature_boost.run_eddy_loss`) and on the
+    reset winding (a still coil's pulse, the catch tripping where its magnetising current
+    reaches ``reset.current``)."""
     if switch.topology == "full_bridge" and not supply.boost_capacitance > 0:
         return "supply.boost_capacitance", ("a latching coil on a full bridge from an ideal boost (each fast "
                                             "decay returns into the boost capacitor: give its capacitance)")
@@ -1465,10 +1467,7 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
     if armature is not None and (coil.flux_current or (reset is not None and reset.flux_current)):
         return "coil.flux_current", ("a latching coil with a moving armature from the boost with a flux-linkage "
                                      "curve (the set pulse's seat run from the boost: a linear coil, an eddy "
-                                     "term on the set winding too)")
-    if armature is not None and reset is not None and reset.eddy_resistance:
-        return "reset_coil.eddy_resistance", ("a latching coil with a moving armature from the boost with an "
-                                              "eddy-current term on the reset winding (the set winding's only)")
+                                     "term on either winding too)")
     if latch is not None and latch.reset_settle_time > 0:
         return "reset.settle_time", ("a reset settle time (each pulse from the boost ends at its current "
                                      "threshold, not at a time after it)")
@@ -1601,7 +1600,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, or a "
                          "linear coil on a full bridge with a boost capacitor; a stiff or a "
                          "drooping main supply (a clamp on a stiff one), no reset settle_time; with [armature] a "
-                         "linear coil (an eddy term on the set winding too), seated by the "
+                         "linear coil (an eddy term on either winding too), seated by the "
                          "set pulse's threshold")
 
 
