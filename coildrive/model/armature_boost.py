@@ -61,6 +61,7 @@ from .armature import (BOUND, MAX_BOUNCES, OPEN, REST_FRACTION, SEAT, SEATED, ST
                        ZERO, ArmatureParams)
 from .armature_flight import fly_mixed, is_stiff
 from .armature_runs import PullInBatch, pull_in
+from .eddy import stiff_loss
 from .pwm import MixedDecay
 from . import supply as bus_model
 
@@ -592,9 +593,8 @@ def run_eddy_loss(p_boost: ArmatureParams, t, state) -> np.ndarray:
     switch on throughout (rows of the run; ``p_boost`` with an eddy term): from a capacitor
     the seventh row (:func:`~coildrive.model.armature_runs.pull_in`'s ``eddy_loss``); from
     an ideal boost, whose stiff ``V_b`` puts ``V_b - R_on i_t`` across the branch at every
-    instant, in flight or at rest, ``int (V_b - R_on i_t)^2 dt / R_e`` = ``(V_b^2 t - 2 V_b
-    R_on q + R_on^2 sq) / R_e`` from the run's own ``q``, ``sq`` (the terminal current's)."""
+    instant, in flight or at rest: :func:`coildrive.model.eddy.stiff_loss` of the run's own
+    ``q``, ``sq`` (the terminal current's)."""
     if p_boost.droops:
         return state[6]
-    v, r = p_boost.v_on, p_boost.r_on
-    return (v * v * np.asarray(t, float) - 2.0 * v * r * state[3] + r * r * state[4]) / p_boost.eddy
+    return stiff_loss(t, state[3], state[4], p_boost.v_on, p_boost.r_on, p_boost.eddy)
