@@ -164,13 +164,14 @@ def _side(label: str) -> bool:
     return label.endswith("the boost at its highest")
 
 
-def set_pulse_against_reference(drive, d):
+def set_pulse_against_reference(drive, d, reference=reference):
     """The design ``d``'s set pulse against :func:`reference` (scipy solve_ivp) within 1e-5
     relative (the armature's share against the mechanical work 1e-4): the latest seat, the
     fastest and the longest pulse, the capacitor at its end, the highest (terminal) current
     at a turn-off, the energy from the boost, the copper's, the freewheel diode's, the eddy
     resistance's (0 without one), the main supply's in a clamp's decay (0 without one), the
-    armature's; the balance closes. Returns the pulse and
+    armature's; the balance closes (``reference``: another of its signature,
+    test_latch_boost_armature_curves' over the curves). Returns the pulse and
     the reference at the highest current's corner, both sides."""
     assert d.ok, [(c.name, c.detail) for c in d.checks if not c.ok]
     p = next(p for p in d.latch.pulses if p.name == "set")
@@ -216,7 +217,7 @@ def test_set_pulse_against_solve_ivp(valve):
                                                      + b.energy_j / drive.supply.boost_power, rel=1e-9)
 
 
-def simulated_set_pulse(path, drive, d, code: int, tmp_path, plot: bool = False) -> None:
+def simulated_set_pulse(path, drive, d, code: int, tmp_path, plot: bool = False, ref=reference) -> None:
     """``simulate`` at 9 V, coil 20 degC: the set pulse ends at the first tick whose reading is
     the threshold ``code``, on the armature's run from the nominal boost -- its length, the
     (terminal) current and the boost capacitor at its end against :func:`reference` (scipy
@@ -232,10 +233,10 @@ def simulated_set_pulse(path, drive, d, code: int, tmp_path, plot: bool = False)
     w = np.genfromtxt(csv, delimiter=",", names=True)
     rate = drive.board.tick.rate
     corner, trip = "9 V, coil 20 degC, R nom, L nom", nominal_trip(drive, code)
-    t_code = reference(drive, corner, None, trip, 0.0)["trip"]
+    t_code = ref(drive, corner, None, trip, 0.0)["trip"]
     length = firmware_pulse(d, "set", 9.0, 20.0)
     assert length == pytest.approx(math.ceil(t_code * rate) / rate, abs=1e-12)
-    ref = reference(drive, corner, None, trip, length - t_code)
+    ref = ref(drive, corner, None, trip, length - t_code)
     end = int(np.searchsorted(w["time_s"], length))
     assert w["current_a"][end] == pytest.approx(ref["i"], rel=1e-4)        # scipy solve_ivp
     assert w["boost_v"][end] == pytest.approx(ref["u"], rel=1e-5)
