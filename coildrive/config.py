@@ -1466,7 +1466,6 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
         return (("coil.flux_current" if coil.flux_current else "coil.eddy_resistance"),
                 "a latching coil on a full bridge from the boost with a flux-linkage curve or an eddy-current "
                 "term (its fast decay back into the boost capacitor: a linear coil)")
-    reset = latch.reset_coil if latch is not None else None
     if armature is not None and coil.flux_current and not supply.boost_capacitance > 0:
         return "supply.boost_capacitance", ("a latching coil with a moving armature over its open and seated "
                                             "flux-linkage curves from an ideal boost (the set pulse's seat run over "

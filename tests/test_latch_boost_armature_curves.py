@@ -39,7 +39,6 @@ import math
 import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
-from scipy.optimize import brentq
 
 from conftest import EXAMPLES, run_cli
 from test_latch_armature_curves import Curve, _table

@@ -57,10 +57,10 @@ import math
 
 import numpy as np
 
-from .armature import (BOUND, BOUND_FACTOR, MAX_BOUNCES, OPEN, REST_FRACTION, SEAT, SEATED, STALLED, START, TRIPPED,
+from .armature import (BOUND, MAX_BOUNCES, OPEN, REST_FRACTION, SEAT, SEATED, STALLED, START, TRIPPED,
                        ZERO, ArmatureParams)
 from .armature_flight import fly_mixed, is_stiff
-from .armature_runs import PullInBatch, bus_time_scale, pull_in
+from .armature_runs import PullInBatch, pull_in
 from .eddy import stiff_loss
 from .pwm import MixedDecay
 from . import supply as bus_model
@@ -563,7 +563,7 @@ def seated_on(p: ArmatureParams, y, dt) -> np.ndarray:
     y = np.asarray(y, float)
     dt = np.broadcast_to(np.asarray(dt, float), y[0].shape)
     if p.curves is not None:
-        return _held_on_seat(p, y, dt)[1]
+        return _held_on_seat(p, y, dt)
     i0 = p.current(y[0], 0.0)
     if p.droops:
         b = p.bus(False)
@@ -577,20 +577,17 @@ def seated_on(p: ArmatureParams, y, dt) -> np.ndarray:
     return np.stack([p.flux_closed(i), zero, zero, y[3] + q, y[4] + sq] + extra)
 
 
-def _held_on_seat(p: ArmatureParams, y, dt, rtol: float = 1e-7) -> tuple[np.ndarray, np.ndarray]:
-    """A coil with curves on the boost capacitor: the seated coil held on the seat from the
-    run's state ``y`` (rows lambda, x, v, q, sq, u) for ``dt`` s per point, switched on
-    (the flight integrator, ``held``). ``(highest current A at its accepted steps and its
-    end, the state then)``."""
+def _held_on_seat(p: ArmatureParams, y, dt, rtol: float = 1e-7) -> np.ndarray:
+    """A coil with curves on the boost capacitor: the run's state (rows lambda, x, v, q, sq,
+    u) ``dt`` s per point on from ``y``, the seated coil held on the seat and switched on
+    (the flight integrator, ``held``)."""
     n = len(p)
     y0 = np.array(y, float)
     y0[1], y0[2] = 0.0, 0.0
-    t0 = np.zeros(n)
     ones = np.ones(n, bool)
-    peak = np.stack([p.current(y0[0], 0.0), t0])
-    fl = fly_mixed(p, t0, y0, t0 + dt, ones, ones, ones, is_stiff(p, p.opening_force(p.stroke)), rtol,
-                   held=ones, track=ones, peak=peak)
-    return np.maximum(peak[0], p.current(fl.y[0], 0.0)), fl.y
+    fl = fly_mixed(p, np.zeros(n), y0, np.asarray(dt, float), ones, ones, ones,
+                   is_stiff(p, p.opening_force(p.stroke)), rtol, held=ones)
+    return fl.y
 
 
 def seated_in_peak(pin: PullInBatch) -> np.ndarray:
