@@ -1452,7 +1452,13 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
     line where it is not on the seat when the current reaches the threshold,
     :func:`coildrive.design.latch_boost.armature_pulse`; the main bus sees only the
     converter's recharge of the run's energy), an eddy term on the set winding too (from a
-    boost capacitor: its loss is a state of that run)."""
+    boost capacitor its loss is a state of that run; from an ideal boost it follows from the
+    run's own integrals: :func:`coildrive.model.armature_boost.run_eddy_loss`) and on the
+    reset winding (a still coil's pulse, the catch tripping where its magnetising current
+    reaches ``reset.current``); or the set winding's open and seated flux-linkage curves from
+    a boost capacitor without an eddy term (the seat run over the curves:
+    :func:`coildrive.model.armature_runs.pull_in` with a trip; the tick after the threshold
+    the seated curve held on the seat, :func:`coildrive.model.armature_boost.seated_on`)."""
     if switch.topology == "full_bridge" and not supply.boost_capacitance > 0:
         return "supply.boost_capacitance", ("a latching coil on a full bridge from an ideal boost (each fast "
                                             "decay returns into the boost capacitor: give its capacitance)")
@@ -1460,18 +1466,14 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
         return (("coil.flux_current" if coil.flux_current else "coil.eddy_resistance"),
                 "a latching coil on a full bridge from the boost with a flux-linkage curve or an eddy-current "
                 "term (its fast decay back into the boost capacitor: a linear coil)")
-    reset = latch.reset_coil if latch is not None else None
-    if armature is not None and (coil.flux_current or (reset is not None and reset.flux_current)):
-        return "coil.flux_current", ("a latching coil with a moving armature from the boost with a flux-linkage "
-                                     "curve (the set pulse's seat run from the boost: a linear coil, an eddy "
-                                     "term on the set winding too)")
-    if armature is not None and reset is not None and reset.eddy_resistance:
-        return "reset_coil.eddy_resistance", ("a latching coil with a moving armature from the boost with an "
-                                              "eddy-current term on the reset winding (the set winding's only)")
-    if armature is not None and coil.eddy_resistance and not supply.boost_capacitance > 0:
-        return "supply.boost_capacitance", ("a latching coil with a moving armature and an eddy-current term "
-                                            "from an ideal boost (the set pulse's eddy loss is followed on a "
-                                            "boost capacitor's run: give its capacitance)")
+    if armature is not None and coil.flux_current and not supply.boost_capacitance > 0:
+        return "supply.boost_capacitance", ("a latching coil with a moving armature over its open and seated "
+                                            "flux-linkage curves from an ideal boost (the set pulse's seat run over "
+                                            "the curves is a boost capacitor's: give its capacitance)")
+    if armature is not None and coil.flux_current and coil.eddy_resistance:
+        return "coil.eddy_resistance", ("a latching coil with a moving armature over its open and seated "
+                                        "flux-linkage curves and an eddy-current term (the curves' seat run from "
+                                        "the boost: without one; a linear coil takes one)")
     if latch is not None and latch.reset_settle_time > 0:
         return "reset.settle_time", ("a reset settle time (each pulse from the boost ends at its current "
                                      "threshold, not at a time after it)")
@@ -1604,8 +1606,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, or a "
                          "linear coil on a full bridge with a boost capacitor; a stiff or a "
                          "drooping main supply (a clamp on a stiff one), no reset settle_time; with [armature] a "
-                         "linear coil (an eddy term on the set winding from a boost capacitor too), seated by the "
-                         "set pulse's threshold")
+                         "linear coil (an eddy term on either winding too) or its open and seated curves from a boost "
+                         "capacitor (no eddy term), seated by the set pulse's threshold")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,

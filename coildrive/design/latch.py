@@ -805,16 +805,15 @@ def on_eddy_energy(pin, p, t, v, r_on):
     """J the eddy resistance ``R_e`` takes over a set pulse ``t`` s long on the stiff bus at
     ``v`` V through ``r_on`` ohm, ``t`` past every seat time (0 without an eddy term). The
     branch's voltage is ``R_e (i - i_m) = v - r_on i`` (``i`` the terminal current), so up
-    to the seat it is ``(v^2 t_s - 2 v r_on int i dt + r_on^2 int i^2 dt) / R_e`` from the
-    seat run's integrals; after the seat the seated branch's closed form
+    to the seat it follows from the seat run's integrals
+    (:func:`coildrive.model.eddy.stiff_loss`); after the seat the seated branch's closed form
     (:func:`coildrive.model.eddy.rise_integrals`)."""
     if p.eddy is None:
         return 0.0 * np.asarray(v, float)
     from ..model import eddy
 
-    t_s = pin.seat_time
-    run = (v * v * t_s - 2.0 * v * r_on * pin.seat_charge + r_on * r_on * pin.seat_square) / p.eddy
-    dt = np.maximum(t - t_s, 0.0)
+    run = eddy.stiff_loss(pin.seat_time, pin.seat_charge, pin.seat_square, v, r_on, p.eddy)
+    dt = np.maximum(t - pin.seat_time, 0.0)
     return np.maximum(run, 0.0) + eddy.rise_integrals(dt, pin.seat_current, v, r_on, p.coil_closed)[2]
 
 

@@ -74,11 +74,17 @@ seated coil's closed form from the boost capacitor
 energy ``1/2 C (V_b^2 - u^2)`` and ``int i^2 dt`` are the run's. The balance above then has
 one more term, the armature's (``armature_j``: the spring's and the load's work, the
 damping's heat and the seat's impact), its remainder. With an eddy term on the set winding
-(from a boost capacitor) the run is the branch's (the force on the magnetising current, the
-threshold and ``int i^2 dt`` on the terminal current, the switch turning that off) and
+the run is the branch's (the force on the magnetising current, the threshold and ``int i^2
+dt`` on the terminal current, the switch turning that off); from a boost capacitor it
 carries the eddy resistance's loss as a state of its own
-(:func:`coildrive.model.armature_runs.pull_in`'s ``eddy_loss``), so ``E_eddy`` is computed,
-that plus the release's, and the remainder stays the mechanical work. On a drooping main
+(:func:`coildrive.model.armature_runs.pull_in`'s ``eddy_loss``), from an ideal boost the
+loss follows from the run's own integrals (the branch sees ``V_b - R i_t``:
+:func:`coildrive.model.armature_boost.run_eddy_loss`), so ``E_eddy`` is computed, that plus
+the release's, and the remainder stays the mechanical work. Over the set winding's open and
+seated flux-linkage curves (from a boost capacitor, no eddy term) the run is the curves'
+(``pull_in`` with the trip, its resting stretches flown), the tick after the threshold the
+seated curve held on the seat and flown (:func:`coildrive.model.armature_boost.seated_on`),
+the decay and ``int i dpsi`` the seated curve's (the winding's loop takes it). On a drooping main
 supply the converter's draw after the set pulse is the run's energy (:func:`main_bus`).
 """
 
@@ -95,7 +101,7 @@ from ..errors import InputError
 from ..model import boost as model
 from ..model import converter_bus
 from ..model.bridge import RETURN_DROPS, boost_return
-from ..model.circuit import freewheel_element_energy, full_bridge, loop
+from ..model.circuit import freewheel_element_energy, full_bridge, loop, open_inductance
 from ..model.eddy import EddyCoil, release_eddy_energy, stored_energy
 from ..model.flux_boost import FluxBoost
 from ..model.rl import decay_integrals, decay_time
@@ -164,7 +170,7 @@ def armature_pulse(wd: Drive, lp, l_factor, label, thr: tuple[float, int, float]
     (:func:`pulse_threshold`): the module docstring's runs, refused in one line where the
     armature is not at rest on the seat when the current reaches the threshold itself."""
     from ..model.armature import SEATED, TRIPPED, params_from_loop
-    from ..model.armature_boost import boost_energy, seated_on
+    from ..model.armature_boost import boost_energy, run_eddy_loss, seated_on
     from ..model.armature_runs import pull_in
     from .boost_armature import BoostRuns, boosted_params
 
@@ -175,20 +181,23 @@ def armature_pulse(wd: Drive, lp, l_factor, label, thr: tuple[float, int, float]
     first, ends, out = {}, {}, {}
     for high in (False, True):
         pb = boosted_params(wd, p, high)
-        pin = pull_in(pb, trip=i_th, eddy_loss=eddy)
+        carry = eddy and pb.droops   # (an ideal boost's loss follows from q and sq: run_eddy_loss)
+        pin = pull_in(pb, trip=i_th, eddy_loss=carry)
         open_ = np.flatnonzero(pin.status == TRIPPED)
         if open_.size:
             _refuse(wd, pb, pin, int(open_[np.argmin(pin.trip_time[open_])]), label, high, i_th)
         first[high] = pin
-        end = pull_in(pb, trip=i_trip, eddy_loss=eddy) if i_trip > i_th else pin
+        end = pull_in(pb, trip=i_trip, eddy_loss=carry) if i_trip > i_th else pin
         hit = np.isfinite(end.trip_time)
+        t_end = np.where(hit, end.trip_time + dt, np.inf)
         y = seated_on(pb, np.where(hit, end.trip_state, 0.0), dt)
         u = y[5] if pb.droops else pb.v_on
         i_top = np.where(hit, pb.current(y[0], 0.0), 0.0)
         i_end = np.where(hit, pb.terminal(i_top, True, bus=u), 0.0)   # (what the switch turns off)
         drawn = np.where(hit, boost_energy(pb, y), 0.0)
-        ends[high] = (i_top, i_end, np.where(hit, y[4], 0.0), drawn, np.where(hit, y[6], 0.0) if eddy else 0.0 * drawn)
-        out[high] = (np.where(hit, end.trip_time + dt, np.inf), i_end, np.where(hit, u, np.nan), drawn)
+        loss = np.where(hit, run_eddy_loss(pb, np.where(hit, t_end, 0.0), y), 0.0) if eddy else 0.0 * drawn
+        ends[high] = (i_top, i_end, np.where(hit, y[4], 0.0), drawn, loss)
+        out[high] = (t_end, i_end, np.where(hit, u, np.nan), drawn)
     seat = {h: np.where(first[h].status == SEATED, first[h].seat_time, np.inf) for h in (False, True)}
     seat_high = seat[True] > seat[False]
     low, high_ = out[False], out[True]
@@ -197,11 +206,11 @@ def armature_pulse(wd: Drive, lp, l_factor, label, thr: tuple[float, int, float]
                      fast_time=first[True].trip_time, end_current=np.where(more, low[1], high_[1]),
                      end_boost=np.where(more, low[2], high_[2]), energy=np.fmax(low[3], high_[3]),
                      duty=np.zeros(len(p)), window=0.0,
-                     reachable=_reachable(boosted_params(wd, p, False), first[False]))
+                     reachable=_reachable(boosted_params(wd, p, False), first[False], _open_top(wd, lp, l_factor)))
     return ArmaturePulse(np.where(seat_high, seat[True], seat[False]), seat_high, first[False], runs, ends)
 
 
-def _reachable(pb, pin) -> np.ndarray:
+def _reachable(pb, pin, open_top=None) -> np.ndarray:
     """A per point: the most current the armature's run from the boost ``pb`` drives where it
     never reaches its trip (``pin``): seated, the larger of its hump before the seat (the
     largest at the integrator's accepted steps: the crest between two of them a little
@@ -212,11 +221,16 @@ def _reachable(pb, pin) -> np.ndarray:
     With an eddy term (the threshold on the terminal current ``(u + R_e i_m)/(R + R_e)``)
     those are the magnetising current's, taken with the capacitor at its seat (or full) as
     an upper bound of the terminal current's (the capacitor only falls while the current
-    flows); the hump is the terminal current's already."""
+    flows); the hump is the terminal current's already. Over the open and seated curves
+    (``pb.curves``) the seated coil is flown on from the seat (``pin.seated_top``, the run's
+    own flight to the trip that never comes), and ``open_top`` (A per point) is the open
+    curve's highest from the capacitor (:func:`_open_top`)."""
     from ..model import supply as bus_model
     from ..model.armature import SEATED
 
     seated = pin.status == SEATED
+    if pb.curves is not None:   # no closed form: the seated coil flown on from the seat
+        return np.where(seated, np.fmax(pin.hump_current, pin.seated_top), open_top)
     if pb.droops:
         open_top = bus_model.top_current(pb.bus(True))
         u_seat = np.where(seated, pin.seat_bus, pb.v_on)
@@ -228,6 +242,16 @@ def _reachable(pb, pin) -> np.ndarray:
         open_top = pb.v_on / pb.r_on
         seat_top = np.maximum(np.where(seated, pin.seat_current, 0.0), open_top)
     return np.where(seated, np.fmax(pin.hump_current, seat_top), open_top)
+
+
+def _open_top(wd: Drive, lp, l_factor):
+    """Over the open and seated curves: the most current the boost at its lowest drives
+    through the open curve with the armature at rest on the open stop (its first maximum,
+    :mod:`coildrive.model.flux_boost`); ``None`` for a linear ``L(x)``."""
+    if not wd.coil.seated_current:
+        return None
+    b = boost.boost_side(wd, lp, open_inductance(wd, l_factor), False)
+    return model.of(b).highest_current(b, sensed=True)
 
 
 def seats_check(arm: ArmaturePulse, r, label) -> Check:
@@ -299,7 +323,7 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult, ends: dict | None
             s_on = m.square_integral(t, bb)
             drawn = m.energy_drawn(t, bb)
             i_end = m.terminal(i_top, v_top, bb)
-        else:   # a moving armature: a linear coil on one switch, an eddy term too (config refuses the rest)
+        else:   # a moving armature on one switch: a linear coil (an eddy term too) or its two curves
             i_top, i_end, s_on, drawn, loss_on = ends[high]
         ind = lp.inductance
         sense = wd.board.sense

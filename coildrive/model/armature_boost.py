@@ -61,6 +61,7 @@ from .armature import (BOUND, MAX_BOUNCES, OPEN, REST_FRACTION, SEAT, SEATED, ST
                        ZERO, ArmatureParams)
 from .armature_flight import fly_mixed, is_stiff
 from .armature_runs import PullInBatch, pull_in
+from .eddy import stiff_loss
 from .pwm import MixedDecay
 from . import supply as bus_model
 
@@ -554,11 +555,15 @@ def seated_on(p: ArmatureParams, y, dt) -> np.ndarray:
     of ``y``, the eddy loss of :func:`~coildrive.model.armature_runs.pull_in`'s
     ``eddy_loss``, accumulates :func:`~coildrive.model.supply.eddy_loss_from`): a latching
     coil's set pulse from the boost, seated at its threshold, on for the tick until the
-    driver sees it (:mod:`coildrive.design.latch_boost`)."""
+    driver sees it (:mod:`coildrive.design.latch_boost`). Over the open and seated curves
+    (``p.curves``: a boost capacitor, no eddy term) there is no closed form: the seated coil
+    held on the seat is flown for ``dt`` s (:func:`_held_on_seat`)."""
     from .rl import rise_current, rise_integrals
 
     y = np.asarray(y, float)
     dt = np.broadcast_to(np.asarray(dt, float), y[0].shape)
+    if p.curves is not None:
+        return _held_on_seat(p, y, dt)
     i0 = p.current(y[0], 0.0)
     if p.droops:
         b = p.bus(False)
@@ -570,6 +575,19 @@ def seated_on(p: ArmatureParams, y, dt) -> np.ndarray:
         i, extra = rise_current(dt, i0, p.v_on, p.r_on, p.coil_closed), []
     zero = np.zeros(np.shape(i))
     return np.stack([p.flux_closed(i), zero, zero, y[3] + q, y[4] + sq] + extra)
+
+
+def _held_on_seat(p: ArmatureParams, y, dt, rtol: float = 1e-7) -> np.ndarray:
+    """A coil with curves on the boost capacitor: the run's state (rows lambda, x, v, q, sq,
+    u) ``dt`` s per point on from ``y``, the seated coil held on the seat and switched on
+    (the flight integrator, ``held``)."""
+    n = len(p)
+    y0 = np.array(y, float)
+    y0[1], y0[2] = 0.0, 0.0
+    ones = np.ones(n, bool)
+    fl = fly_mixed(p, np.zeros(n), y0, np.asarray(dt, float), ones, ones, ones,
+                   is_stiff(p, p.opening_force(p.stroke)), rtol, held=ones)
+    return fl.y
 
 
 def seated_in_peak(pin: PullInBatch) -> np.ndarray:
@@ -585,3 +603,15 @@ def boost_energy(p_boost: ArmatureParams, state) -> np.ndarray:
     if p_boost.droops:
         return 0.5 * p_boost.capacitance * (p_boost.v_on**2 - state[5]**2)
     return p_boost.v_on * q
+
+
+def run_eddy_loss(p_boost: ArmatureParams, t, state) -> np.ndarray:
+    """J the eddy resistance has taken at a run's ``state`` ``t`` s after switch-on, the
+    switch on throughout (rows of the run; ``p_boost`` with an eddy term): from a capacitor
+    the seventh row (:func:`~coildrive.model.armature_runs.pull_in`'s ``eddy_loss``); from
+    an ideal boost, whose stiff ``V_b`` puts ``V_b - R_on i_t`` across the branch at every
+    instant, in flight or at rest: :func:`coildrive.model.eddy.stiff_loss` of the run's own
+    ``q``, ``sq`` (the terminal current's)."""
+    if p_boost.droops:
+        return state[6]
+    return stiff_loss(t, state[3], state[4], p_boost.v_on, p_boost.r_on, p_boost.eddy)

@@ -84,6 +84,11 @@ class PullInBatch:
     #: (:func:`coildrive.model.armature_boost.boosted_pull_in`): False where the seated
     #: coil's PWM orbit had not repeated within its run (its ``lowest_bus`` the lowest so far).
     bus_settled: np.ndarray | None = None
+    #: With a ``trip`` over curves (``p.curves``, the boost capacitor): the seated coil's
+    #: highest current (A) from the seat on while it is held there until the trip (over the
+    #: run's bound plus the capacitor loop's time scale where the trip never comes), at the
+    #: integrator's accepted steps and its end; NaN where the run does not seat.
+    seated_top: np.ndarray | None = None
 
     @property
     def dip_depth(self) -> np.ndarray:
@@ -332,10 +337,11 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     status = np.where(status < 0, STALLED, status)
     stall_gap = np.where((status == STALLED) & np.isnan(stall_gap), y[1], stall_gap)
     seated = status == SEATED
+    seated_top = None
     if trip is not None:
         if curved:
-            trip_time, trip_y, st = _seated_trip_held(p, trip, seated, seat_time, seat_y, bound, stiff, rtol,
-                                                      trip_time, trip_y)
+            trip_time, trip_y, st, seated_top = _seated_trip_held(p, trip, seated, seat_time, seat_y, bound,
+                                                                  stiff, rtol, trip_time, trip_y)
             steps += st
         else:
             trip_time, trip_y = _seated_trip(p, trip, seated, seat_time, seat_current, seat_bus, seat_q,
@@ -368,7 +374,8 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
                        peak_end_current=peak_end, bound=bound, steps=steps,
                        lowest_bus=None if low is None else low[0],
                        lowest_bus_time=None if low is None else low[1], seat_bus=seat_bus,
-                       seat_charge=seat_q, seat_square=seat_s, trip_time=trip_time, trip_state=trip_y)
+                       seat_charge=seat_q, seat_square=seat_s, trip_time=trip_time, trip_state=trip_y,
+                       seated_top=seated_top)
 
 
 def _early_trip(p: ArmatureParams, trip, t_start, eddy_loss: bool = False):
@@ -406,19 +413,22 @@ def _seated_trip_held(p: ArmatureParams, trip, seated, seat_time, seat_y, bound,
     until its flux reaches the seated curve's at ``trip`` A (the current at the seat is
     ``i_c(psi)``: the flux is the event), within ``bound`` s from switch-on plus the
     capacitor loop's own time scale; ``inf`` where never. Returns ``(trip_time, trip_y,
-    steps)``."""
+    steps, the highest current over the flight A)`` (:attr:`PullInBatch.seated_top`)."""
     n = len(p)
     steps = np.zeros(n, int)
     if not seated.any():
-        return trip_time, trip_y, steps
+        return trip_time, trip_y, steps, np.full(n, np.nan)
     t0 = np.where(seated, seat_time, 0.0)
     y0 = np.where(seated, seat_y, 0.0)
     y0[1], y0[2] = 0.0, 0.0
     end = t0 + np.where(np.isfinite(bound), bound, 0.0) + BOUND_FACTOR * bus_time_scale(p)
     ones = np.ones(n, bool)
-    fl = fly_mixed(p, t0, y0, end, seated, ones, ones, stiff, rtol, held=ones, flux_to=p.flux_closed(trip))
+    peak = np.stack([p.current(y0[0], 0.0), t0])
+    fl = fly_mixed(p, t0, y0, end, seated, ones, ones, stiff, rtol, held=ones, flux_to=p.flux_closed(trip),
+                   track=seated.copy(), peak=peak)
     ok = seated & (fl.end == START)
-    return (np.where(ok, fl.t, trip_time), np.where(ok, fl.y, trip_y), np.where(seated, fl.steps, 0))
+    top = np.where(seated, np.maximum(peak[0], p.current(fl.y[0], 0.0)), np.nan)
+    return (np.where(ok, fl.t, trip_time), np.where(ok, fl.y, trip_y), np.where(seated, fl.steps, 0), top)
 
 
 def _rise_to(p: ArmatureParams, open_: bool, trip, i0, u0, eddy_loss: bool = False):

@@ -81,6 +81,16 @@ def terminal(i_m, v, r, r_e):
     return (np.asarray(v, float) + r_e * np.asarray(i_m, float)) / (np.asarray(r, float) + r_e)
 
 
+def stiff_loss(t, q, sq, v, r, r_e):
+    """J ``r_e`` ohm across the magnetising branch takes over ``t`` s switched on from a
+    stiff ``v`` V through the loop's ``r`` ohm, from the terminal current's ``q = int i dt``
+    A*s and ``sq = int i^2 dt`` A^2*s over them (whatever the branch does -- a moving
+    armature, a curve): the branch sees ``v - r i`` at every instant, so ``int (v - r i)^2
+    dt / R_e = (v^2 t - 2 v r q + r^2 sq) / R_e``."""
+    v, r = np.asarray(v, float), np.asarray(r, float)
+    return (v * v * np.asarray(t, float) - 2.0 * v * r * np.asarray(q, float) + r * r * np.asarray(sq, float)) / r_e
+
+
 def block_current(v_off, r_e):
     """The magnetising current (A) at which a freewheel against ``v_off`` V stops
     conducting: the terminal current is zero there (``V_off / R_e``)."""

@@ -330,11 +330,10 @@ def _seating(drive: Drive, lp, l_factor: float, t_pulse: float, points: int, sup
                          f"{coil_temp:g} degC, so the catch would not hold it")
     # (with an eddy term the magnetising current: pulse() turns it into the terminal current)
     i = tr.current if tr.magnetising_current is None else tr.magnetising_current
-    if tr.bus is None:   # a stiff bus (an ideal boost: its voltage)
-        return tr.time, i, tr.position, np.full(tr.time.shape, float(p.v_on[0]))
-    # from the boost: the top of the coil is the capacitor less the boost path's drop (the
-    # terminal current's, with an eddy term)
-    return tr.time, i, tr.position, (tr.bus - s.boost_resistance * tr.current if s.boosted else tr.bus)
+    u = np.full(tr.time.shape, float(p.v_on[0])) if tr.bus is None else tr.bus   # (a stiff bus: its voltage)
+    # from the boost: the top of the coil is the capacitor (an ideal boost's voltage) less the
+    # boost path's drop (the terminal current's, with an eddy term)
+    return tr.time, i, tr.position, (u - s.boost_resistance * tr.current if s.boosted else u)
 
 
 def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float,
