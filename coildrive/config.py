@@ -1442,9 +1442,10 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
     ``None``: they are (:mod:`coildrive.design.latch_boost`) for a linear coil or a
     flux-linkage curve (the set winding's; an eddy term on either winding too: the boosted
     peak's runs of :mod:`coildrive.model.flux_boost`), a reset winding on a second low- or
-    high-side switch, or a linear coil on a full bridge whose high-side rail the boost
-    switch feeds (both polarities; a boost capacitor, which takes each fast decay back
-    through the boost switch's body diode), a stiff or a drooping main supply (either way
+    high-side switch, or one coil on a full bridge whose high-side rail the boost switch
+    feeds (both polarities; a boost capacitor, which takes each fast decay back through the
+    boost switch's body diode: a linear coil's closed form, a curve's or an eddy term's runs
+    of :func:`coildrive.model.flux_bus_decay.boost_return`), a stiff or a drooping main supply (either way
     the pulses draw nothing from it, the boost converter's recharges do:
     :func:`coildrive.design.latch_boost.main_bus`) and no settle time after the reset pulse;
     with an ``[armature]`` a linear coil and its reset winding on a stiff or a drooping main
@@ -1456,10 +1457,6 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
     if switch.topology == "full_bridge" and not supply.boost_capacitance > 0:
         return "supply.boost_capacitance", ("a latching coil on a full bridge from an ideal boost (each fast "
                                             "decay returns into the boost capacitor: give its capacitance)")
-    if switch.topology == "full_bridge" and (coil.flux_current or coil.eddy_resistance):
-        return (("coil.flux_current" if coil.flux_current else "coil.eddy_resistance"),
-                "a latching coil on a full bridge from the boost with a flux-linkage curve or an eddy-current "
-                "term (its fast decay back into the boost capacitor: a linear coil)")
     reset = latch.reset_coil if latch is not None else None
     if armature is not None and (coil.flux_current or (reset is not None and reset.flux_current)):
         return "coil.flux_current", ("a latching coil with a moving armature from the boost with a flux-linkage "
@@ -1544,7 +1541,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     bounded by the first law: :func:`coildrive.design.boost_armature.peak_heat`).
     A latching coil's set and reset pulses from the boost, each ending at its own threshold
     (:mod:`coildrive.design.latch_boost`; a linear coil or a curve, an eddy term too; on a
-    full bridge a linear coil, the boost feeding both legs' high side and each fast decay
+    full bridge too, the boost feeding both legs' high side and each fast decay
     returning into the boost capacitor; a clamp across the switch on a stiff main supply,
     whose decay draws on it): what :func:`_boosted_latch_refusal` allows.
     Anything else is refused in one line."""
@@ -1601,8 +1598,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "supply-table hold), a clamp without split decay, on a full bridge a "
                          "slow-decay hold), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; a "
-                         "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, or a "
-                         "linear coil on a full bridge with a boost capacitor; a stiff or a "
+                         "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, or on a "
+                         "full bridge with a boost capacitor; a stiff or a "
                          "drooping main supply (a clamp on a stiff one), no reset settle_time; with [armature] a "
                          "linear coil (an eddy term on the set winding from a boost capacitor too), seated by the "
                          "set pulse's threshold")

@@ -24,8 +24,8 @@ heat every interval, from the hottest ambient, up to ``thermal.max_coil_temp``),
 capacitor's recharge to the bus the pulses were designed from.
 
 From the boost (``[supply] boost``; two windings, the set winding linear or on a curve,
-an eddy term on either, or one linear coil on a full bridge whose high-side rail the boost
-switch feeds; a stiff or a drooping main supply): each pulse ends at its own current
+an eddy term on either, or one coil on a full bridge whose high-side rail the boost switch
+feeds, linear, on a curve or with an eddy term; a stiff or a drooping main supply): each pulse ends at its own current
 threshold with a time-out, its energy is drawn from the boost (on a bridge its fast decay
 returns into the boost capacitor), and the boost's recharge enters the interval
 (:mod:`coildrive.design.latch_boost`); on a drooping main supply the pulses do not draw on

@@ -21,12 +21,16 @@ boosted peak does (:mod:`coildrive.design.boost`, physics :mod:`coildrive.model.
 *On a full bridge* (one coil, both polarities) the boost switch feeds the bridge's
 high-side rail and the main supply reaches it through a blocking diode: after each pulse
 the current returns up two body diodes and the boost switch's into the boost capacitor
-(:func:`return_decay`, :func:`coildrive.model.bridge.boost_return`), never into the main
+(:func:`return_decay`, :func:`coildrive.model.flux_bus_decay.boost_return`), never into the main
 bus. The pulse's energy balance gains ``returned_j`` (the capacitor's rise), the decay's
 ``int i^2 dt`` comes from its own balance, ``R_b`` is in the decay too, and the freewheel is
 the three diodes; the switches see one diode and ``R_b i`` more than the boosted peak's
 (the rail rides on the capacitor), and the boost recharges only what it net gives
-(:func:`bridge_figures`).
+(:func:`bridge_figures`). A linear coil's return is the series RLC's closed form; a
+flux-linkage curve's or an eddy term's the stepped or closed-form runs of
+:func:`coildrive.model.flux_bus_decay.boost_return` (the capacitor with no source behind
+it), whose ``int i^2 dt`` comes from the same balance with the field's ``int i dpsi`` and
+the eddy resistance's share of the return (in ``eddy_j``).
 
 Energy per pulse (the corner and side where the boost gives the most): from zero current
 back to zero the capacitor's ``1/2 C (V_b^2 - v_C^2)`` is exactly what the loop takes::
@@ -94,10 +98,11 @@ from ..config import Drive
 from ..errors import InputError
 from ..model import boost as model
 from ..model import converter_bus
-from ..model.bridge import RETURN_DROPS, boost_return
+from ..model.bridge import RETURN_DROPS
 from ..model.circuit import freewheel_element_energy, full_bridge, loop
 from ..model.eddy import EddyCoil, release_eddy_energy, stored_energy
 from ..model.flux_boost import FluxBoost
+from ..model.flux_bus_decay import boost_return
 from ..model.rl import decay_integrals, decay_time
 from . import boost
 from .result import BoostResult, Check
@@ -304,14 +309,16 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult, ends: dict | None
         sense = wd.board.sense
         r_sense = sense.resistance * sense_factor
         eddy = isinstance(ind, EddyCoil)
-        if bridge:   # back into the boost capacitor (module docstring, *On a full bridge*;
-            # a linear coil: config refuses a curve or an eddy term there)
+        if bridge:   # back into the boost capacitor (module docstring, *On a full bridge*)
             back = return_decay(wd, rel, i_top, v_top, bb.c)
-            t_zero, q_d, returned = back.zero_time, back.charge, back.returned
+            t_zero, q_d = back.zero_time, back.charge
+            returned = 0.5 * bb.c * (back.bus_at_zero**2 - v_top**2)
             fw = RETURN_DROPS * rel.diode(wd) * q_d
-            # int i^2 dt of the decay by its energy balance: the field's 1/2 L i^2 into the
-            # loop's resistance, the diodes and the capacitor
-            s_d = (0.5 * ind * i_top**2 - fw - returned) / (rel.r_off + r_b)
+            loss_d = back.eddy_energy if eddy else 0.0
+            # int i^2 dt of the decay by its energy balance: the field's int i dpsi (1/2 L i^2
+            # on a line; the magnetising branch's with an eddy term) into the loop's
+            # resistance, the diodes, the capacitor and the eddy resistance
+            s_d = (stored_energy(ind.magnetising if eddy else ind, i_top) - fw - returned - loss_d) / (rel.r_off + r_b)
         else:
             t_zero = decay_time(0.0, i_top, rel.r_off, rel.v_off, ind)
             q_d, s_d = decay_integrals(t_zero, i_top, rel.r_off, rel.v_off, ind)
@@ -328,7 +335,8 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult, ends: dict | None
                  # the on-time's share by the boost's balance, then the release's (the
                  # conduction, then the flux's tail through R_e alone)
                  "eddy_j": ((m.eddy_loss(t, bb) if ends is None else loss_on)
-                            + release_eddy_energy(i_top, rel.r_off, rel.v_off, ind) if eddy else 0.0 * drawn),
+                            + (loss_d if bridge else release_eddy_energy(i_top, rel.r_off, rel.v_off, ind))
+                            if eddy else 0.0 * drawn),
                  "stored_j": stored_energy(ind.magnetising if eddy else ind, i_top), "main_supply_j": main}
         # the armature's share: what the boost gave that no element took (zero current at both ends)
         parts["armature_j"] = (drawn + main - sum(parts[n] for n in ("copper_j", "switch_sense_j", "boost_j", "freewheel_j",
@@ -345,10 +353,12 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult, ends: dict | None
 
 
 def return_decay(wd: Drive, rel, i0, v_c, c):
-    """A full bridge's fast decay of ``i0`` A after a pulse from the boost, back into the
-    boost capacitor of ``c`` F at ``v_c`` V at the points of the release loop ``rel``
-    (:func:`coildrive.model.bridge.boost_return`)."""
-    return boost_return(i0, v_c, c, rel.r_off, wd.supply.boost_resistance, rel.inductance, rel.diode(wd))
+    """A full bridge's fast decay of ``i0`` A (with an eddy term the magnetising current)
+    after a pulse from the boost, back into the boost capacitor of ``c`` F at ``v_c`` V at
+    the points of the release loop ``rel``
+    (:func:`coildrive.model.flux_bus_decay.boost_return`: a linear coil, a curve or an eddy
+    term; a :class:`~coildrive.model.bus_decay.FastDecay`)."""
+    return boost_return(rel.inductance, i0, v_c, c, rel.r_off, wd.supply.boost_resistance, rel.diode(wd))
 
 
 def bridge_figures(wd: Drive, b: BoostResult, e: dict) -> BoostResult:

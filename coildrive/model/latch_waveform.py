@@ -29,7 +29,8 @@ armature the set pulse's run from it, the capacitor a state), the top of the coi
 capacitor less ``R_b i``; after the pulse the winding's freewheel path returns its current
 to the top, which the main supply holds (the boost switch is off). On a full bridge the
 boost switch feeds the high-side rail and the fast decay returns up its body diode into
-the boost capacitor (:func:`coildrive.model.bridge.boost_return`): the rail is the
+the boost capacitor (:func:`coildrive.model.flux_bus_decay.boost_return`: a linear coil, a
+curve or an eddy term, the current then the terminal one): the rail is the
 capacitor + ``V_d + R_b i`` then. A ``boost_v`` column is the capacitor through both
 pulses, recharged at ``boost_power`` after each. On a drooping main supply a
 ``main_bus_v`` column is the main bus (:mod:`coildrive.model.converter_bus`: the
@@ -52,7 +53,6 @@ from . import boost as boost_model
 from . import eddy, flux_bus, flux_bus_decay
 from . import supply as bus_model
 from .eddy import EddyCoil
-from .bridge import boost_return, boost_return_trace
 from .circuit import full_bridge, loop
 from .flux import FluxCoil
 from .flux_bus_decay import fast_decays
@@ -126,16 +126,18 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
     r_off, v_off = float(rel.r_off), float(rel.v_off)
     fast = fast_decay_after(drive, rel, i_top, float(bus[-1]))
     clamped = clamp_decay_after(drive, rel, i_top, float(bus[-1]))
+    returning = drive.supply.boosted and full_bridge(drive)
     if clamped is not None:   # a clamp on the drooping bus: the decay draws the capacitor down further
         tz = float(clamped.zero_time)
         t_d = np.linspace(0.0, tz, points + 1)[1:]
         i_d, bus_d = flux_bus_decay.clamp_trace(t_d, rel.inductance, i_top, float(bus[-1]),
                                                 *_clamp_args(drive, rel))   # (the terminal current)
         i_d[-1] = 0.0   # (the zero, to rounding)
-    elif drive.supply.boosted and full_bridge(drive):   # back into the boost capacitor, up Q_b's body diode
-        tz = float(boost_return(i_top, float(v_c[-1]), *return_args(drive, rel)).zero_time)
+    elif returning:   # back into the boost capacitor, up Q_b's body diode (the terminal current)
+        coil, args = return_args(drive, rel)
+        tz = float(flux_bus_decay.boost_return(coil, i_top, float(v_c[-1]), *args).zero_time)
         t_d = np.linspace(0.0, tz, points + 1)[1:]
-        i_d, v_cd = boost_return_trace(t_d, i_top, float(v_c[-1]), *return_args(drive, rel))
+        i_d, v_cd = flux_bus_decay.boost_return_trace(t_d, coil, i_top, float(v_c[-1]), *args)
         i_d[-1] = 0.0   # (the zero, to rounding)
         bus_d = v_cd + float(rel.diode(drive)) + drive.supply.boost_resistance * i_d   # the bridge's rail
     elif fast is None:
@@ -150,7 +152,7 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
         i_d[-1] = 0.0   # (the zero, to rounding)
     if r_e is not None:   # the magnetising currents to the terminal current (model.eddy): on, then freewheeling
         i_on = eddy.terminal(i_on, bus, r_on, r_e)
-        if fast is None and clamped is None:
+        if fast is None and clamped is None and not returning:
             i_d = np.maximum(eddy.terminal(i_d, -v_off, r_off, r_e), 0.0)
     t = np.concatenate([t_on, t_pulse + t_d])
     i = np.concatenate([i_on, i_d])
@@ -161,11 +163,12 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
 
 def return_args(drive: Drive, rel) -> tuple:
     """A full bridge's return into the boost capacitor at one point
-    (:func:`coildrive.model.bridge.boost_return`): ``(C_b, r_off, R_b, L, V_d)``, the
-    capacitor at its nominal capacitance."""
+    (:func:`coildrive.model.flux_bus_decay.boost_return`): ``(coil, (C_b, r_off, R_b,
+    V_d))``, the coil the release loop's (a linear ``L`` H, a flux-linkage curve or an eddy
+    term), the capacitor at its nominal capacitance."""
     s = drive.supply
-    return (s.boost_capacitance, *(float(np.ravel(x)[0]) for x in (rel.r_off, s.boost_resistance, rel.inductance,
-                                                                     rel.diode(drive))))
+    return rel.inductance, (s.boost_capacitance, *(float(np.ravel(x)[0]) for x in (rel.r_off, s.boost_resistance,
+                                                                                     rel.diode(drive))))
 
 
 def _fast_args(drive: Drive, rel, i0: float, v0: float) -> tuple:
@@ -230,7 +233,7 @@ def boost_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp: flo
     charge, then the converter recharges it at ``boost_power``
     (:func:`coildrive.model.boost.voltage_trace`); the reset pulse starts from full charge
     (the interval includes the recharge). A full bridge's fast decay returns into it after
-    each pulse (:func:`coildrive.model.bridge.boost_return`): the converter's charge from
+    each pulse (:func:`coildrive.model.flux_bus_decay.boost_return`): the converter's charge from
     the pulse's end is added in energy, ``v^2 = v_r^2 + 2 P (t - t_end) / C`` up to ``V_b``
     (``v_r`` the return's capacitor; their coupling in the decay left out, as the design's
     recharge of the net energy does). ``seating``: with a moving armature the set
@@ -251,11 +254,12 @@ def boost_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp: flo
             trace = boost_model.voltage_trace(time - start, length, b, wd.supply.boost_power)
         if full_bridge(wd):
             rel = loop(wd, supply, coil_temp, r_factor, l_factor, path="release")
-            i_end, v_end = (float(x) for x in boost_model.state(length, b))
-            args = return_args(wd, rel)
+            i_end, v_end = (float(x) for x in boost_model.of(b).state(length, b))
+            coil, args = return_args(wd, rel)
             dt = np.maximum(time - start - length, 0.0)
-            v_r = boost_return_trace(np.minimum(dt, float(boost_return(i_end, v_end, *args).zero_time)),
-                                     i_end, v_end, *args)[1]
+            v_r = flux_bus_decay.boost_return_trace(
+                np.minimum(dt, float(flux_bus_decay.boost_return(coil, i_end, v_end, *args).zero_time)),
+                coil, i_end, v_end, *args)[1]
             after = boost_model.recharge_voltage(v_r, dt, wd.supply.boost_capacitance, wd.supply.boost_power,
                                                  wd.supply.boost)
             trace = np.where(time - start <= length, trace, after)
@@ -280,7 +284,7 @@ def _main_bus_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp:
     resting in between (:func:`coildrive.model.converter_bus.trace`). ``seating``: with a
     moving armature the set pulse's (:func:`boost_column`): ``v_end`` is its run's. On a
     full bridge ``v_end`` is the capacitor after the fast decay's return
-    (:func:`coildrive.model.bridge.boost_return`): the converter puts back the net, as the
+    (:func:`coildrive.model.flux_bus_decay.boost_return`): the converter puts back the net, as the
     ``boost_v`` column's recharge reaches ``V_b`` once the return is over."""
     from . import converter_bus
 
@@ -297,8 +301,8 @@ def _main_bus_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp:
             c_b = float(b.c)
             if full_bridge(wd):   # the decay's return into the capacitor first
                 rel = loop(wd, supply, coil_temp, r_factor, l_factor, path="release")
-                ret = boost_return(i_end, v_end, *return_args(wd, rel))
-                v_end = float(boost_return_trace(ret.zero_time, i_end, v_end, *return_args(wd, rel))[1])
+                coil, args = return_args(wd, rel)
+                v_end = float(flux_bus_decay.boost_return(coil, i_end, v_end, *args).bus_at_zero)
         draw = 0.5 * c_b * (s.boost**2 - v_end**2) / s.boost_power if s.boost_power > 0 else 0.0
         starts.append(start + length)
         lengths.append(min(draw, nxt - start - length))
