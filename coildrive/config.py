@@ -1876,8 +1876,9 @@ def _check_latch(source: str, switch: Switch, freewheel: Freewheel, latch: Latch
     switch (each decay draws from the bus: the pulse energies take it; on the drooping bus
     the clamped decay's draw on the capacitor: a linear coil's in closed form, a
     flux-linkage curve's or an eddy term's by the stepped or closed-form runs of
-    :func:`coildrive.model.flux_bus_decay.clamp_decay`; not with a moving armature, whose
-    set pulse's seat run would have to carry the clamped decay's draw)."""
+    :func:`coildrive.model.flux_bus_decay.clamp_decay`; with a moving armature from the set
+    pulse's seat run's end state, the seated coil decaying:
+    :func:`coildrive.design.latch.clamp_decays_from_full`)."""
     if switch.topology == "full_bridge" and latch.reset_coil is not None:
         raise InputError(source, "reset_coil", "a full bridge resets the one coil with the other "
                          "polarity: expected [reset_coil] left out (or a low- or high-side board)")
@@ -1886,11 +1887,6 @@ def _check_latch(source: str, switch: Switch, freewheel: Freewheel, latch: Latch
                          "by a permanent magnet, which the armature model does not have: expected "
                          "[armature] left out, or a reset winding ([reset_coil]) on a low- or "
                          "high-side board (a catch that the reset winding trips)")
-    if freewheel.type == "clamp" and supply is not None and supply.droops and armature is not None:
-        raise InputError(source, "freewheel.type", "\"clamp\" with a latching coil on the drooping bus "
-                         "(supply.source_resistance) is not designed with a moving [armature] (the set "
-                         "pulse's seat run does not carry the clamped decay's draw on the capacitor): "
-                         "expected [armature] left out, \"diode\", \"zener\" or \"resistor\", or a stiff bus")
     if freewheel.split_decay:
         raise InputError(source, "freewheel.split_decay", "a latching coil has no hold to decay slowly "
                          "in: expected split_decay left out")
