@@ -328,22 +328,31 @@ def test_on_the_drooping_bus_against_solve_ivp(tmp_path):
         "recharge: the RC step from the lowest bus (solve_ivp)"
 
 
-def test_a_clamp_on_the_drooping_bus_against_solve_ivp(tmp_path):
-    """A 36 V clamp across the switch on the same bus: the seat run's end state (solve_ivp
-    above) and then the seated curve's clamped decay with the capacitor a state, written
-    afresh (``dpsi/dt = u - V_clamp - R_off i``, ``C du/dt = (V_s - u)/R_s - i``, ``i`` the
-    seated curve's current), to the current's zero: the recharge at its corner (the decay,
+@pytest.mark.parametrize("r_e", [None, 200.0])
+def test_a_clamp_on_the_drooping_bus_against_solve_ivp(tmp_path, r_e):
+    """A 36 V clamp across the switch on the same bus (and with an invented 200 ohm eddy
+    resistance): the seat run's end state (solve_ivp above) and then the seated curve's
+    clamped decay with the capacitor a state, written afresh (``dpsi/dt = u - V_clamp - R_off
+    i``, ``C du/dt = (V_s - u)/R_s - i``, ``i`` the seated curve's current; with ``R_e`` the
+    terminal current ``(u - V_clamp + R_e i_m)/(R_off + R_e)`` by Kirchhoff, ``dpsi/dt = R_e
+    (i - i_m)``), to the (terminal) current's zero: the recharge at its corner (the decay,
     then the RC step from the bus there) within 1e-5."""
     r_s, c, v_clamp = 1.5, 2200e-6, 36.0
-    drive, d, p, _ = _on_the_bus(tmp_path, "", f'\n[freewheel]\ntype = "clamp"\nclamp_voltage = "{v_clamp:g} V"\n')
+    drive, d, p, _ = _on_the_bus(tmp_path, "" if r_e is None else f'eddy_resistance = "{r_e:g} ohm"\n',
+                                 f'\n[freewheel]\ntype = "clamp"\nclamp_voltage = "{v_clamp:g} V"\n')
     v, temp, rf, lf = _corner(p.recharge_corner)
     v = drive.supply.min if v < drive.supply.min else v   # the full capacitor: the source
-    ref = _set_pulse(drive, v, temp, rf, lf, p.shortest_s, p.time_s, bus=(r_s, c))
+    ref = _set_pulse(drive, v, temp, rf, lf, p.shortest_s, p.time_s, bus=(r_s, c), r_e=r_e)
     st = Curve(lf, **SEATED)
     r_off = drive.coil.resistance * (1 + ALPHA * (temp - drive.coil.reference_temp)) * rf + drive.board.sense.resistance
-    zero = lambda t, y: st.i_of(y[0])   # noqa: E731
+
+    def flow(y):   # (the terminal current, dpsi/dt)
+        i_m = st.i_of(y[0])
+        i = i_m if r_e is None else (y[1] - v_clamp + r_e * i_m) / (r_off + r_e)
+        return i, y[1] - v_clamp - r_off * i
+    zero = lambda t, y: flow(y)[0]   # noqa: E731
     zero.terminal, zero.direction = True, -1
-    off = solve_ivp(lambda t, y: [y[1] - v_clamp - r_off * st.i_of(y[0]), ((v - y[1]) / r_s - st.i_of(y[0])) / c],
+    off = solve_ivp(lambda t, y: [flow(y)[1], ((v - y[1]) / r_s - flow(y)[0]) / c],
                     (0, 1.0), [ref["psi_end"], ref["bus_end"]], events=zero, method="DOP853", rtol=1e-11, atol=1e-14)
     t_zero, v_end = float(off.t_events[0][0]), float(off.y_events[0][0][1])
     tol = drive.latch.recharge_tolerance
