@@ -1542,8 +1542,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     A latching coil's set and reset pulses from the boost, each ending at its own threshold
     (:mod:`coildrive.design.latch_boost`; a linear coil or a curve, an eddy term too; on a
     full bridge too, the boost feeding both legs' high side and each fast decay
-    returning into the boost capacitor; a clamp across the switch on a stiff main supply,
-    whose decay draws on it): what :func:`_boosted_latch_refusal` allows.
+    returning into the boost capacitor; a clamp across the switch on a stiff or a drooping
+    main supply, whose decay draws on it: :func:`coildrive.design.latch_boost.main_bus`): what
+    :func:`_boosted_latch_refusal` allows.
     Anything else is refused in one line."""
     if not supply.boosted:
         return
@@ -1566,10 +1567,6 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = refused
     elif hold.mode == "latch" and (refused := _boosted_latch_refusal(coil, switch, supply, armature, latch)):
         key, why = refused
-    elif hold.mode == "latch" and freewheel.type == "clamp" and supply.droops:
-        key, why = "freewheel.type", ("a latching coil's pulses from the boost with a clamp across the switch "
-                                      "on a drooping main supply (the clamp's draw on it after each pulse, with "
-                                      "the converter's: a stiff main supply only)")
     elif armature is not None and supply.droops and freewheel.type == "clamp" and freewheel.split_decay:
         key, why = "freewheel.split_decay", ("a drooping main supply, a moving armature and a clamp bypassed "
                                              "in the hold (split decay: the clamp's draw from the bus while "
@@ -1600,7 +1597,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; a "
                          "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, or on a "
                          "full bridge with a boost capacitor; a stiff or a "
-                         "drooping main supply (a clamp on a stiff one), no reset settle_time; with [armature] a "
+                         "drooping main supply, no reset settle_time; with [armature] a "
                          "linear coil (an eddy term on the set winding from a boost capacitor too), seated by the "
                          "set pulse's threshold")
 

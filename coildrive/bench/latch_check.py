@@ -206,8 +206,14 @@ def predict_pulse(design, name: str, supply: float, coil_temp: float, zero_curre
             fall = (r_ret * level + u) / l_level
     elif wd.supply.droops and wd.freewheel.type == "clamp":   # the clamped decay draws the bus down further
         from ..model.latch_waveform import clamp_decay_after, pulse
-        _, _, on, bus, *_ = pulse(wd, supply, coil_temp, 1.0, 1.0, length, 2)
-        clamped = clamp_decay_after(wd, rel, i_end, float(bus[on == 1][-1]), level)
+        # (from the boost the decay draws on the main bus, full at the pulse's end: the pulse drew
+        # nothing from it; else on the bus the pulse left)
+        if wd.supply.boosted:
+            v0 = supply
+        else:
+            _, _, on, bus, *_ = pulse(wd, supply, coil_temp, 1.0, 1.0, length, 2)
+            v0 = float(bus[on == 1][-1])
+        clamped = clamp_decay_after(wd, rel, i_end, v0, level)
         # (an eddy term: the clamp blocks where the terminal current, which the sense reads, stops)
         t_zero = float(np.ravel(clamped.zero_time if isinstance(ind, EddyCoil) else clamped.drop_time)[0])
     return {"length_s": length, "end_current_a": i_sensed, "slope_a_s": slope, "time_to_zero_s": t_zero,

@@ -142,6 +142,8 @@ class PulseResult:
     armature at rest on the seat (at ``seat_corner``); the reset pulse's ``open_time_s`` the
     latest time from its start to the armature at rest on the open stop (the catch trips
     at ``current_a``, then spring and load open it). ``None`` / 0 without an armature.
+    ``decay_charge_c``: from the boost with a clamp across the switch, the most charge (C,
+    ``int i dt``) a decay draws from the main supply over the corners (0 otherwise).
     """
 
     name: str
@@ -184,6 +186,7 @@ class PulseResult:
     boost_j: float = 0.0
     boost: BoostResult | None = None
     main_supply_j: float = 0.0
+    decay_charge_c: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -626,6 +629,7 @@ def _boosted(drive: Drive, wd: Drive, pts: Points, name: str, winding: str, swit
         not_reached=not_reached, supply_j=e["supply_j"], copper_j=e["copper_j"],
         switch_sense_j=e["switch_sense_j"], freewheel_j=e["freewheel_j"], returned_j=e["returned_j"],
         boost_j=e["boost_j"], eddy_j=e["eddy_j"], main_supply_j=e["main_supply_j"],
+        decay_charge_c=e["decay_charge_c"],
         stored_j=e["stored_j"], energy_corner=pts.label(e["k"]) + (", the boost at its highest" if e["high"]
                                                                    else ", the boost at its lowest"),
         decay_time_s=e["decay_time_s"], peak_switch_voltage_v=b.switch_voltage_v,

@@ -285,14 +285,16 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult, ends: dict | None
     armature's, the remainder; 0 without ``ends``), ``main_supply_j`` what the main supply gives in a clamp's decay (``V_main Q_d``; 0
     for the other paths), and ``k`` the point, ``high`` the side;
     ``decay_time_s`` the longest time to zero (of the terminal current) after a pulse,
-    ``end_current_a`` the highest (terminal) current it turns off and ``net_j`` the most
-    the boost net gives (drawn less returned; over both sides). ``ends``: a moving
+    ``end_current_a`` the highest (terminal) current it turns off, ``net_j`` the most
+    the boost net gives (drawn less returned; over both sides) and ``decay_charge_c`` with a
+    clamp across the switch the most charge a decay draws from the main supply (``int i
+    dt``; 0 otherwise). ``ends``: a moving
     armature's pulse ends (:attr:`ArmaturePulse.ends`; a linear coil on one switch), else
     the still coil's closed form."""
     trip = b.trip_max_a
     bridge = full_bridge(wd)
     r_b = wd.supply.boost_resistance
-    best, t_zero_max, i_max, net_max = None, 0.0, 0.0, 0.0
+    best, t_zero_max, i_max, net_max, q_max = None, 0.0, 0.0, 0.0, 0.0
     for high in (False, True):
         if ends is None:
             bb = boost.boost_side(wd, lp, lp.inductance, high)
@@ -349,7 +351,9 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult, ends: dict | None
         t_zero_max = max(t_zero_max, float(np.max(t_zero)))
         i_max = max(i_max, float(np.max(i_end)))
         net_max = max(net_max, float(np.max(drawn - returned)))
-    return {**best, "decay_time_s": t_zero_max, "end_current_a": i_max, "net_j": net_max}
+        if wd.freewheel.type == "clamp" and not bridge:
+            q_max = max(q_max, float(np.max(q_d)))
+    return {**best, "decay_time_s": t_zero_max, "end_current_a": i_max, "net_j": net_max, "decay_charge_c": q_max}
 
 
 def return_decay(wd: Drive, rel, i0, v_c, c):
@@ -488,7 +492,18 @@ class MainBus:
     at there (V_1 of :mod:`coildrive.model.converter_bus`). ``None`` where the source behind
     ``R_s`` cannot carry the draw at all: it delivers at most ``source_limit_w`` = ``V_s^2 /
     (4 R_s)`` at the lowest source. Units V, ohm, F, W, s (``period_s`` and ``spacing_s``
-    null in the JSON where no interval is safe: then one run from a full bus)."""
+    null in the JSON where no interval is safe: then one run from a full bus).
+
+    With a clamp across each winding's switch each pulse's decay draws from the main bus
+    too (its current flows from it through the winding into the clamp): at most
+    ``decay_charge_c`` C (the pulses' :attr:`~coildrive.design.latch.PulseResult.decay_charge_c`)
+    within ``longest_decay_s`` s of the pulse's end. A run may then start as late as the
+    decay's end (a converter held off until the current's zero), so ``spacing_s`` is
+    ``period_s`` less the longest pulse and the longest decay; ``clamp_drop_v`` bounds how
+    much further the decays pull the bus below the runs' orbit
+    (:func:`coildrive.model.converter_bus.clamp_drop`), and ``lowest_bus_v`` and ``droop_v``
+    include it (a bound under every schedule, the decays overlapping the runs or not; ``None``
+    where that bound finds no floor)."""
 
     source_resistance_ohm: float
     capacitance_f: float
@@ -503,13 +518,17 @@ class MainBus:
     source_limit_w: float
     longest_pulse_s: float = 0.0
     spacing_s: float = math.inf
+    decay_charge_c: float = 0.0
+    longest_decay_s: float = 0.0
+    clamp_drop_v: float = 0.0
 
 
 def main_bus(drive: Drive, pulses: list, interval: float) -> tuple[MainBus | None, list[Check]]:
     """The drooping main bus under the boost converter's recharges (:class:`MainBus`) at both
     ends of the source (``supply.min``, ``supply.max``), pulses at least ``interval`` s apart
-    (their runs ``interval`` less the longest pulse), and its check ``boost_main_bus`` (the
-    source carries the converter's draw); ``(None, [])`` on a stiff main supply. One
+    (their runs ``interval`` less the longest pulse; with a clamp across the switch less its
+    longest decay too, whose draw :class:`MainBus` bounds), and its check ``boost_main_bus``
+    (the source carries the converter's draw); ``(None, [])`` on a stiff main supply. One
     function for both topologies: a reset winding's pulses and a full bridge's (whose
     recharge is of the net energy, :func:`bridge_figures`)."""
     s = drive.supply
@@ -519,11 +538,18 @@ def main_bus(drive: Drive, pulses: list, interval: float) -> tuple[MainBus | Non
     boosted = [p for p in pulses if p.boost is not None]
     t_draw = max((p.boost.recharge_time_s or 0.0 for p in boosted), default=0.0)
     longest = max((p.time_s for p in boosted), default=0.0)
+    clamped = drive.freewheel.type == "clamp" and not full_bridge(drive)   # each decay draws on it
+    q = max((p.decay_charge_c for p in boosted), default=0.0) if clamped else 0.0
+    t_q = max((p.decay_time_s for p in boosted), default=0.0) if clamped else 0.0
     period = interval   # (inf where no interval is safe: one run from a full bus)
-    spacing = max(period - longest, t_draw)   # (runs that may touch: one long run, the floor)
+    spacing = max(period - longest - t_q, t_draw)   # (runs that may touch: one long run, the floor)
     v_s = np.array([s.min, s.max])
     low = converter_bus.orbit_low(v_s, s.source_resistance, s.capacitance, p_in, t_draw, spacing)
     floor = converter_bus.roots(v_s, s.source_resistance, p_in)[0]
+    drop = (converter_bus.clamp_drop(low, q, t_q, period, s.source_resistance, s.capacitance, p_in) if clamped
+            else np.zeros_like(low))
+    carried_runs = bool(np.all(np.isfinite(low)))
+    low = low - drop
     carried = bool(np.all(np.isfinite(low)))
     k = int(np.argmin(low)) if carried else 0
     limit = s.min**2 / (4.0 * s.source_resistance)
@@ -532,7 +558,14 @@ def main_bus(drive: Drive, pulses: list, interval: float) -> tuple[MainBus | Non
         draw_time_s=t_draw, period_s=period, source_v=float(v_s[k]),
         lowest_bus_v=float(low[k]) if carried else None, lowest_bus_corner=f"source {v_s[k]:.4g} V",
         droop_v=float(v_s[k] - low[k]) if carried else None, floor_v=float(floor[k]) if carried else None,
-        source_limit_w=limit, longest_pulse_s=longest, spacing_s=spacing)
+        source_limit_w=limit, longest_pulse_s=longest, spacing_s=spacing, decay_charge_c=q, longest_decay_s=t_q,
+        clamp_drop_v=float(drop[k]) if carried else 0.0)
+    if carried_runs and not carried:
+        return bus, [Check("boost_main_bus", False,
+                           f"each pulse's decay through the clamp draws up to {q * 1e3:.4g} mC from the main bus "
+                           f"besides the boost converter's {p_in:.4g} W: no floor under the bus is found (it may "
+                           "collapse) -- a lower supply.source_resistance, a larger supply.capacitance or a "
+                           "smaller supply.boost_power")]
     if not carried:
         return bus, [Check("boost_main_bus", False,
                            f"the source at {s.min:.4g} V behind {s.source_resistance:.4g} ohm delivers at most "
@@ -543,12 +576,15 @@ def main_bus(drive: Drive, pulses: list, interval: float) -> tuple[MainBus | Non
              if math.isfinite(period) else "once")
     back = ("; each pulse's fast decay returns into the boost capacitor, so it recharges the net"
             if full_bridge(drive) else "")
+    if clamped:
+        back = (f"; each pulse's decay through the clamp draws up to {q * 1e3:.4g} mC from it in "
+                f"{t_q * 1e3:.4g} ms, at most {bus.clamp_drop_v:.4g} V more")
     return bus, [Check("boost_main_bus", True,
                        f"the boost converter draws {p_in:.4g} W from the main bus for {t_draw * 1e3:.4g} ms a "
                        f"pulse ({every}): the bus falls {bus.droop_v:.4g} V to "
                        f"{bus.lowest_bus_v:.4g} V at its {bus.lowest_bus_corner} (a steady draw settles at "
-                       f"{bus.floor_v:.4g} V); the pulses run from the boost and their freewheel paths return "
-                       f"nothing to it{back}")]
+                       f"{bus.floor_v:.4g} V); the pulses run from the boost"
+                       + (back if clamped else f" and their freewheel paths return nothing to it{back}"))]
 
 
 def _sample_armature(wd: Drive, lp, rel, l_factor, b: BoostResult, trip, v_factor, c_factor) -> tuple:
