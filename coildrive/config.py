@@ -1442,9 +1442,10 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
     ``None``: they are (:mod:`coildrive.design.latch_boost`) for a linear coil or a
     flux-linkage curve (the set winding's; an eddy term on either winding too: the boosted
     peak's runs of :mod:`coildrive.model.flux_boost`), a reset winding on a second low- or
-    high-side switch, or a linear coil on a full bridge whose high-side rail the boost
-    switch feeds (both polarities; a boost capacitor, which takes each fast decay back
-    through the boost switch's body diode), a stiff or a drooping main supply (either way
+    high-side switch, or one coil on a full bridge whose high-side rail the boost switch
+    feeds (both polarities; a boost capacitor, which takes each fast decay back through the
+    boost switch's body diode: a linear coil's closed form, a curve's or an eddy term's runs
+    of :func:`coildrive.model.flux_bus_decay.boost_return`), a stiff or a drooping main supply (either way
     the pulses draw nothing from it, the boost converter's recharges do:
     :func:`coildrive.design.latch_boost.main_bus`) and no settle time after the reset pulse;
     with an ``[armature]`` a linear coil and its reset winding on a stiff or a drooping main
@@ -1462,10 +1463,6 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
     if switch.topology == "full_bridge" and not supply.boost_capacitance > 0:
         return "supply.boost_capacitance", ("a latching coil on a full bridge from an ideal boost (each fast "
                                             "decay returns into the boost capacitor: give its capacitance)")
-    if switch.topology == "full_bridge" and (coil.flux_current or coil.eddy_resistance):
-        return (("coil.flux_current" if coil.flux_current else "coil.eddy_resistance"),
-                "a latching coil on a full bridge from the boost with a flux-linkage curve or an eddy-current "
-                "term (its fast decay back into the boost capacitor: a linear coil)")
     if armature is not None and coil.flux_current and not supply.boost_capacitance > 0:
         return "supply.boost_capacitance", ("a latching coil with a moving armature over its open and seated "
                                             "flux-linkage curves from an ideal boost (the set pulse's seat run over "
@@ -1546,9 +1543,10 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     bounded by the first law: :func:`coildrive.design.boost_armature.peak_heat`).
     A latching coil's set and reset pulses from the boost, each ending at its own threshold
     (:mod:`coildrive.design.latch_boost`; a linear coil or a curve, an eddy term too; on a
-    full bridge a linear coil, the boost feeding both legs' high side and each fast decay
-    returning into the boost capacitor; a clamp across the switch on a stiff main supply,
-    whose decay draws on it): what :func:`_boosted_latch_refusal` allows.
+    full bridge too, the boost feeding both legs' high side and each fast decay
+    returning into the boost capacitor; a clamp across the switch on a stiff or a drooping
+    main supply, whose decay draws on it: :func:`coildrive.design.latch_boost.main_bus`): what
+    :func:`_boosted_latch_refusal` allows.
     Anything else is refused in one line."""
     if not supply.boosted:
         return
@@ -1571,10 +1569,6 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = refused
     elif hold.mode == "latch" and (refused := _boosted_latch_refusal(coil, switch, supply, armature, latch)):
         key, why = refused
-    elif hold.mode == "latch" and freewheel.type == "clamp" and supply.droops:
-        key, why = "freewheel.type", ("a latching coil's pulses from the boost with a clamp across the switch "
-                                      "on a drooping main supply (the clamp's draw on it after each pulse, with "
-                                      "the converter's: a stiff main supply only)")
     elif armature is not None and supply.droops and freewheel.type == "clamp" and freewheel.split_decay:
         key, why = "freewheel.split_decay", ("a drooping main supply, a moving armature and a clamp bypassed "
                                              "in the hold (split decay: the clamp's draw from the bus while "
@@ -1603,9 +1597,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "supply-table hold), a clamp without split decay, on a full bridge a "
                          "slow-decay hold), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; a "
-                         "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, or a "
-                         "linear coil on a full bridge with a boost capacitor; a stiff or a "
-                         "drooping main supply (a clamp on a stiff one), no reset settle_time; with [armature] a "
+                         "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, or on a "
+                         "full bridge with a boost capacitor; a stiff or a "
+                         "drooping main supply, no reset settle_time; with [armature] a "
                          "linear coil (an eddy term on either winding too) or its open and seated curves from a boost "
                          "capacitor (no eddy term), seated by the set pulse's threshold")
 
@@ -1881,8 +1875,9 @@ def _check_latch(source: str, switch: Switch, freewheel: Freewheel, latch: Latch
     switch (each decay draws from the bus: the pulse energies take it; on the drooping bus
     the clamped decay's draw on the capacitor: a linear coil's in closed form, a
     flux-linkage curve's or an eddy term's by the stepped or closed-form runs of
-    :func:`coildrive.model.flux_bus_decay.clamp_decay`; not with a moving armature, whose
-    set pulse's seat run would have to carry the clamped decay's draw)."""
+    :func:`coildrive.model.flux_bus_decay.clamp_decay`; with a moving armature from the set
+    pulse's seat run's end state, the seated coil decaying:
+    :func:`coildrive.design.latch.clamp_decays_from_full`)."""
     if switch.topology == "full_bridge" and latch.reset_coil is not None:
         raise InputError(source, "reset_coil", "a full bridge resets the one coil with the other "
                          "polarity: expected [reset_coil] left out (or a low- or high-side board)")
@@ -1891,11 +1886,6 @@ def _check_latch(source: str, switch: Switch, freewheel: Freewheel, latch: Latch
                          "by a permanent magnet, which the armature model does not have: expected "
                          "[armature] left out, or a reset winding ([reset_coil]) on a low- or "
                          "high-side board (a catch that the reset winding trips)")
-    if freewheel.type == "clamp" and supply is not None and supply.droops and armature is not None:
-        raise InputError(source, "freewheel.type", "\"clamp\" with a latching coil on the drooping bus "
-                         "(supply.source_resistance) is not designed with a moving [armature] (the set "
-                         "pulse's seat run does not carry the clamped decay's draw on the capacitor): "
-                         "expected [armature] left out, \"diode\", \"zener\" or \"resistor\", or a stiff bus")
     if freewheel.split_decay:
         raise InputError(source, "freewheel.split_decay", "a latching coil has no hold to decay slowly "
                          "in: expected split_decay left out")

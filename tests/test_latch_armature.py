@@ -57,8 +57,8 @@ def _set_pulse_reference(drive, supply, coil_temp, rf, lf, t_long, bus=None, t_s
     coil fed from the bulk capacitor ``u``, ``C du/dt = (V - u) / R_s - i``, full at
     switch-on (else a stiff bus at ``supply`` V). Returns the seat time s, and over the pulse
     and its decay: V int i dt, R_coil int i^2 dt, the magnetic force's work J; the current at
-    the pulse's end (``.i_top``), at ``t_short`` (``.i_short``), and the lowest bus over the
-    pulse (``.low``) as attributes."""
+    the pulse's end (``.i_top``), at ``t_short`` (``.i_short``), the lowest bus over the
+    pulse (``.low``) and the bus at its end (``.bus_end``) as attributes."""
     a = drive.armature
     r_coil, r_on, r_off, v_off, lc, beta, ind, opening = bolt_circuit(drive, coil_temp, rf, lf)
     s = a.stroke
@@ -96,6 +96,7 @@ def _set_pulse_reference(drive, supply, coil_temp, rf, lf, t_long, bus=None, t_s
     r4 = solve_ivp(lambda t, y: [-(r_off * y[0] + v_off) / lc, y[0] ** 2], (0, 10.0), [i_top, 0.0],
                    events=zero, method="DOP853", rtol=1e-11, atol=1e-14)
     _set_pulse_reference.i_top = i_top   # the current at the pulse's end, A
+    _set_pulse_reference.bus_end = float(r3.y[6, -1])   # the bus then, V
     if t_short is not None:
         run = next(r for r in (r1, r2, r3) if r.t[0] <= t_short <= r.t[-1])
         _set_pulse_reference.i_short = float(run.sol(t_short)[0])

@@ -197,6 +197,7 @@ def _set_pulse(drive, supply, coil_temp, rf, lf, t_short, t_long, bus=None, r_e=
     sw_sense = (drive.switch.on_resistance + b.sense.resistance) * s_on + b.sense.resistance * s_d
     fw = drive.freewheel.resistance * s_d + v_off * q_d
     return dict(seat=t_seat, i_short=i_short, i_top=term(psi_end, 0.0, r3.y[6, -1]), supply_j=supply * q_on,
+                psi_end=psi_end, bus_end=float(r3.y[6, -1]),
                 copper_j=r_coil * (s_on + s_d), switch_sense_j=sw_sense, freewheel_j=fw, work=work,
                 decay=float(r4.t_events[0][0]), low=low,
                 eddy_j=0.0 if r_e is None else e_on + e_d + st.energy(psi_b))
@@ -270,15 +271,15 @@ def test_cli_simulate_check_and_monte_carlo(bolt, tmp_path):
     assert mc["failures"]["set_not_seated"] == 0
 
 
-def _on_the_bus(tmp_path, coil_extra: str = ""):
-    """The bolt on its curves (``coil_extra`` added to its ``[coil]``) fed through an
-    invented 1.5 ohm onto 2200 uF, designed (it passes): ``(drive, design, its set pulse,
-    the lowest bus the pulses are designed from V)``."""
+def _on_the_bus(tmp_path, coil_extra: str = "", extra: str = ""):
+    """The bolt on its curves (``coil_extra`` added to its ``[coil]``, ``extra`` to the file)
+    fed through an invented 1.5 ohm onto 2200 uF, designed (it passes): ``(drive, design,
+    its set pulse, the lowest bus the pulses are designed from V)``."""
     path = bolt_on_curves(tmp_path)
     path.write_text(path.read_text().replace("inductance_tolerance = 0.10\n", "inductance_tolerance = 0.10\n"
                                              + coil_extra, 1)
                     .replace('max = "13.2 V"\n', 'max = "13.2 V"\nsource_resistance = "1.5 ohm"\n'
-                             'capacitance = "2200 uF"\n', 1))
+                             'capacitance = "2200 uF"\n', 1) + extra)
     drive = load_drive(path)
     d = design_latch(drive)
     assert d.ok, [(c.name, c.detail) for c in d.checks if not c.ok]
@@ -325,3 +326,34 @@ def test_on_the_drooping_bus_against_solve_ivp(tmp_path):
     tol = drive.latch.recharge_tolerance
     assert p.recharge_time_s == pytest.approx(r_s * c * math.log1p((v - low) / (tol * v)), rel=1e-5), \
         "recharge: the RC step from the lowest bus (solve_ivp)"
+
+
+@pytest.mark.parametrize("r_e", [None, 200.0])
+def test_a_clamp_on_the_drooping_bus_against_solve_ivp(tmp_path, r_e):
+    """A 36 V clamp across the switch on the same bus (and with an invented 200 ohm eddy
+    resistance): the seat run's end state (solve_ivp above) and then the seated curve's
+    clamped decay with the capacitor a state, written afresh (``dpsi/dt = u - V_clamp - R_off
+    i``, ``C du/dt = (V_s - u)/R_s - i``, ``i`` the seated curve's current; with ``R_e`` the
+    terminal current ``(u - V_clamp + R_e i_m)/(R_off + R_e)`` by Kirchhoff, ``dpsi/dt = R_e
+    (i - i_m)``), to the (terminal) current's zero: the recharge at its corner (the decay,
+    then the RC step from the bus there) within 1e-5."""
+    r_s, c, v_clamp = 1.5, 2200e-6, 36.0
+    drive, d, p, _ = _on_the_bus(tmp_path, "" if r_e is None else f'eddy_resistance = "{r_e:g} ohm"\n',
+                                 f'\n[freewheel]\ntype = "clamp"\nclamp_voltage = "{v_clamp:g} V"\n')
+    v, temp, rf, lf = _corner(p.recharge_corner)
+    v = drive.supply.min if v < drive.supply.min else v   # the full capacitor: the source
+    ref = _set_pulse(drive, v, temp, rf, lf, p.shortest_s, p.time_s, bus=(r_s, c), r_e=r_e)
+    st = Curve(lf, **SEATED)
+    r_off = drive.coil.resistance * (1 + ALPHA * (temp - drive.coil.reference_temp)) * rf + drive.board.sense.resistance
+
+    def flow(y):   # (the terminal current, dpsi/dt)
+        i_m = st.i_of(y[0])
+        i = i_m if r_e is None else (y[1] - v_clamp + r_e * i_m) / (r_off + r_e)
+        return i, y[1] - v_clamp - r_off * i
+    zero = lambda t, y: flow(y)[0]   # noqa: E731
+    zero.terminal, zero.direction = True, -1
+    off = solve_ivp(lambda t, y: [flow(y)[1], ((v - y[1]) / r_s - flow(y)[0]) / c],
+                    (0, 1.0), [ref["psi_end"], ref["bus_end"]], events=zero, method="DOP853", rtol=1e-11, atol=1e-14)
+    t_zero, v_end = float(off.t_events[0][0]), float(off.y_events[0][0][1])
+    tol = drive.latch.recharge_tolerance
+    assert p.recharge_time_s == pytest.approx(t_zero + r_s * c * math.log1p((v - v_end) / (tol * v)), rel=1e-5)

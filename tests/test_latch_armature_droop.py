@@ -10,8 +10,11 @@ switch-on: the latest seat time and the shortest pulse's end current at the wors
 the lowest bus over the longest pulse; the capacitor's recharge after it from the RC
 step ``R_s C ln(1 + dV / (tol V_s))`` (the coil off the bus, docs/design-method.md); the
 reset winding's trip from a full capacitor (its RL loop and the capacitor by solve_ivp)
-and the armature's flight to the open stop. Tolerances 1e-5 (the batched model runs at
-rtol 1e-7).
+and the armature's flight to the open stop. With a clamp across the switch (an invented
+36 V) the set pulse's run then the clamped decay of the seated coil from its end state,
+``L_c di/dt = u - V_clamp - R_off i`` with the capacitor a state, at each of the envelope's 16
+corners: the droop (pulse and decay), the time to zero and the recharge after it. Tolerances
+1e-5 (the batched model runs at rtol 1e-7).
 """
 
 from __future__ import annotations
@@ -119,3 +122,41 @@ def test_cli_simulate_check_and_monte_carlo(bolt, tmp_path):
     assert mc["pulses"]["set"]["time_to_current_s"]["max"] <= p.worst_time_s * (1 + 1e-12)
     assert mc["pulses"]["set"]["supply_j"]["max"] <= p.supply_j * (1 + 1e-12)
     assert mc["failures"]["set_not_seated"] == 0
+
+
+def test_clamp_on_the_drooping_bus_against_solve_ivp(tmp_path):
+    """The set pulse's seat run carries the clamped decay's draw on the capacitor: from the
+    run's end state (solve_ivp, the armature seated) the seated coil decays from the bus
+    through the winding into the clamp, the capacitor a state (written afresh here)."""
+    from scipy.integrate import solve_ivp
+    from test_latch_clamp import V_CLAMP, envelope_runs
+    from test_latch_armature import bolt_circuit
+
+    path = droop_bolt(tmp_path)
+    path.write_text(path.read_text() + f'\n[freewheel]\ntype = "clamp"\nclamp_voltage = "{V_CLAMP:g} V"\n')
+    _, drive, d = designed(path)
+    assert d.ok, [(c.name, c.detail) for c in d.checks if not c.ok]
+    p = next(p for p in d.latch.pulses if p.name == "set")
+    assert drive.freewheel.resistance == 0.0 and drive.board.sense.position == "coil"
+
+    def one(v, temp, rf, lf):   # (lowest bus V over the pulse and the decay, time to zero s, bus then V)
+        ref(drive, v, temp, rf, lf, p.time_s, bus=(R_S, C))
+        r_coil, _, _, _, lc, *_ = bolt_circuit(drive, temp, rf, lf)
+        r_off = r_coil + drive.board.sense.resistance   # the sense in the coil path, the clamp across the switch
+        zero = lambda t, y: y[0]   # noqa: E731
+        zero.terminal, zero.direction = True, -1
+        off = solve_ivp(lambda t, y: [(y[1] - V_CLAMP - r_off * y[0]) / lc, ((v - y[1]) / R_S - y[0]) / C],
+                        (0, 10.0), [ref.i_top, ref.bus_end], events=zero, dense_output=True, method="DOP853",
+                        rtol=1e-11, atol=1e-14)
+        t_zero = float(off.t_events[0][0])
+        return (min(ref.low, off.sol(np.linspace(0, t_zero, 4001))[1].min()), t_zero, float(off.y_events[0][0][1]))
+    runs = envelope_runs(drive, drive.coil, one)
+    assert p.droop_v == pytest.approx(max(v - low for (v, *_), (low, *_) in runs.items()), rel=1e-5)
+    assert p.decay_time_s == pytest.approx(max(x[1] for x in runs.values()), rel=1e-5)
+    # the recharge: the decay, then the RC step from the bus where the current stops
+    tol = drive.latch.recharge_tolerance
+    t_rc = max(t_zero + R_S * C * math.log1p((v - v_end) / (tol * v)) for (v, *_), (_, t_zero, v_end) in runs.items())
+    assert p.recharge_time_s == pytest.approx(t_rc, rel=1e-5)
+    # simulate and the bench run the same decay (plumbing: the device runs the design's physics)
+    for ok, rep in device_reports(d, tmp_path, 12.0, 20.0):
+        assert rep.ok == ok, [(i.name, i.detail) for i in rep.items]

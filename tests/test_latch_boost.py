@@ -344,9 +344,6 @@ BOOST = ("[supply]\n", "[supply]\nboost = \"40 V\"\nboost_capacitance = \"220 uF
     (VALVE, [("[freewheel]", "[armature]\ninductance_open = \"20 mH\"\ninductance_closed = \"30 mH\"\n"
               "stroke = \"1 mm\"\nmass = \"5 g\"\nspring_preload = \"2 N\"\nspring_rate = \"500 N/m\"\n\n"
               "[freewheel]")], [], "pull_in.current_margin"),   # in flight at the threshold
-    (VALVE, [('type = "diode"\n', 'type = "clamp"\nclamp_voltage = "60 V"\n'),   # on a drooping main supply
-             ('boost_power = "1 W"', 'boost_power = "1 W"\nboost_efficiency = 0.85\nsource_resistance = "2 ohm"\n'
-              'capacitance = "1000 uF"')], [], "freewheel.type"),
 ])
 def test_what_a_boosted_latch_refuses_is_one_line(tmp_path, path, edits, args, key):
     src = path

@@ -1,5 +1,6 @@
 """A latching coil's pulses from the boost with a clamp across the switch ([hold] mode =
-"latch", [supply] boost, [freewheel] type = "clamp") on a stiff main supply: after each
+"latch", [supply] boost, [freewheel] type = "clamp") on a stiff main supply (a drooping one:
+tests/test_latch_boost_clamp_droop.py): after each
 pulse the boost switch is open and the winding's current flows from the main supply (the
 top back on it through its diode) through the winding and the clamp, ``L di/dt = -(R_off i
 + V_clamp - V_main)``; the main supply gives ``V_main int i dt`` (``main_supply_j``) and the
@@ -162,12 +163,8 @@ def test_a_high_side_switch_s_node_swings_to_the_main_supply_less_the_clamp(tmp_
                                                              + p.freewheel_j, rel=1e-9)
 
 
-def test_a_clamp_below_the_boost_fails_and_a_drooping_main_supply_is_refused(tmp_path):
+def test_a_clamp_below_the_boost_fails(tmp_path):
     r = run_cli("design", str(_clamped(tmp_path, "36 V")), "--json")
     assert r.returncode == 1, r.stderr
     bad = sorted(c["name"] for c in json.loads(r.stdout)["checks"] if not c["ok"])
     assert bad == ["reset_boost_clamp", "set_boost_clamp"], bad
-    feed = '\nboost_efficiency = 0.85\nsource_resistance = "2 ohm"\ncapacitance = "1000 uF"'
-    r = run_cli("design", str(_clamped(tmp_path, extra=feed)))
-    assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1, r.stderr
-    assert "freewheel.type" in r.stderr and "drooping main supply" in r.stderr

@@ -186,16 +186,34 @@ def predict_pulse(design, name: str, supply: float, coil_temp: float, zero_curre
         # (an eddy term: the diodes block where the terminal current, which the sense reads,
         # reaches zero -- the level's magnetising current is the stiff freewheel's)
         t_zero = float(np.ravel(fast.zero_time if isinstance(ind, EddyCoil) else fast.drop_time)[0])
-    elif wd.supply.boosted and full_bridge(wd):   # back into the boost capacitor (model.bridge.boost_return)
-        from ..model.bridge import RETURN_DROPS, boost_return_drop
+    elif wd.supply.boosted and full_bridge(wd):   # back into the boost capacitor (model.flux_bus_decay.boost_return)
+        from ..model.bridge import RETURN_DROPS
+        from ..model.flux_bus_decay import boost_return, boost_return_trace
         from ..model.latch_waveform import return_args
-        args = return_args(wd, rel)
-        t_zero, v_level = boost_return_drop(level, i_end, v_c, *args)
-        fall = ((r_off + wd.supply.boost_resistance) * level + RETURN_DROPS * args[-1] + v_level) / l_level
+        coil, args = return_args(wd, rel)
+        back = boost_return(coil, i_end, v_c, *args, i_drop=level)
+        # (an eddy term: the diodes block where the terminal current, which the sense reads,
+        # reaches zero -- the level's magnetising current is the stiff freewheel's)
+        t_zero = float(np.ravel(back.zero_time if isinstance(ind, EddyCoil) else back.drop_time)[0])
+        u = float(boost_return_trace(np.array([t_zero]), coil, i_end, v_c, *args)[1][0]) + RETURN_DROPS * args[-1]
+        r_ret = r_off + wd.supply.boost_resistance
+        if isinstance(ind, EddyCoil):
+            # at the block (terminal current 0, i_m = u / R_e) the terminal current k (i_m - u/R_e)
+            # falls at k^2 (u + R i_m) / L_d(i_m) = k u / L_d (the capacitor's rate i/C is 0 there)
+            k_ret = r_e / (r_ret + r_e)
+            fall = k_ret * u / float(np.ravel(incremental_at(ind.magnetising, u / r_e))[0])
+        else:
+            fall = (r_ret * level + u) / l_level
     elif wd.supply.droops and wd.freewheel.type == "clamp":   # the clamped decay draws the bus down further
         from ..model.latch_waveform import clamp_decay_after, pulse
-        _, _, on, bus, *_ = pulse(wd, supply, coil_temp, 1.0, 1.0, length, 2)
-        clamped = clamp_decay_after(wd, rel, i_end, float(bus[on == 1][-1]), level)
+        # (from the boost the decay draws on the main bus, full at the pulse's end: the pulse drew
+        # nothing from it; else on the bus the pulse left)
+        if wd.supply.boosted:
+            v0 = supply
+        else:
+            _, _, on, bus, *_ = pulse(wd, supply, coil_temp, 1.0, 1.0, length, 2)
+            v0 = float(bus[on == 1][-1])
+        clamped = clamp_decay_after(wd, rel, i_end, v0, level)
         # (an eddy term: the clamp blocks where the terminal current, which the sense reads, stops)
         t_zero = float(np.ravel(clamped.zero_time if isinstance(ind, EddyCoil) else clamped.drop_time)[0])
     return {"length_s": length, "end_current_a": i_sensed, "slope_a_s": slope, "time_to_zero_s": t_zero,

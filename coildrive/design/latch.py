@@ -24,8 +24,8 @@ heat every interval, from the hottest ambient, up to ``thermal.max_coil_temp``),
 capacitor's recharge to the bus the pulses were designed from.
 
 From the boost (``[supply] boost``; two windings, the set winding linear or on a curve,
-an eddy term on either, or one linear coil on a full bridge whose high-side rail the boost
-switch feeds; a stiff or a drooping main supply): each pulse ends at its own current
+an eddy term on either, or one coil on a full bridge whose high-side rail the boost switch
+feeds, linear, on a curve or with an eddy term; a stiff or a drooping main supply): each pulse ends at its own current
 threshold with a time-out, its energy is drawn from the boost (on a bridge its fast decay
 returns into the boost capacitor), and the boost's recharge enters the interval
 (:mod:`coildrive.design.latch_boost`); on a drooping main supply the pulses do not draw on
@@ -157,6 +157,8 @@ class PulseResult:
     and decay) -- what the coil-temperature interval and the on/off cycle take; ``copper_j``
     is the energy corner's, which with a supply-compensated table (a longer pulse at a
     lower bus) or a moving armature need not be the most.
+    ``decay_charge_c``: from the boost with a clamp across the switch, the most charge (C,
+    ``int i dt``) a decay draws from the main supply over the corners (0 otherwise).
     """
 
     name: str
@@ -200,6 +202,7 @@ class PulseResult:
     boost: BoostResult | None = None
     main_supply_j: float = 0.0
     heat_j: float = 0.0
+    decay_charge_c: float = 0.0
 
 
 @dataclass(frozen=True)
@@ -458,11 +461,14 @@ def _pulse(drive: Drive, reset: bool, fixed: int | None = None) -> tuple[PulseRe
             b = bus_at(wd, full, full.inductance)   # a curve's: model.flux_bus
             low, _ = model_of(b).lowest_bus(np.full(full.v_on.shape, t_long), b)
         else:   # the armature's run carries the capacitor (its lowest over the pulse)
-            low = seat_run(wd, full, Points(full.v_on, pts.temp, pts.r_factor, pts.l_factor, pts.sense_factor),
-                           peak_time=np.full(full.v_on.shape, t_long))[0].lowest_bus
+            run = seat_run(wd, full, Points(full.v_on, pts.temp, pts.r_factor, pts.l_factor, pts.sense_factor),
+                           peak_time=np.full(full.v_on.shape, t_long))[0]
+            low = run.lowest_bus
         after = 0.0
         if drive.freewheel.type == "clamp":   # the clamped decay draws on the capacitor
-            clamped = clamp_decays_from_full(wd, full, rel, t_long)
+            # (with an armature from its run's end: the catch holds it seated, the seated coil decays)
+            clamped = clamp_decays_from_full(wd, full, rel, t_long,
+                                             None if pin is None else (run.peak_end_current, run.peak_end_bus))
             low, after = np.minimum(low, clamped.bus_max), clamped.zero_time
             t_zero_bus = clamped.zero_time
             dv_end = full.v_on - clamped.bus_at_zero
@@ -562,17 +568,23 @@ def time_to_zero(drive: Drive, lp, rel, i0, fast=None):
     return np.max([f.zero_time for f in fast], axis=0)
 
 
-def clamp_decays_from_full(drive: Drive, full, rel, t_pulse: float):
+def clamp_decays_from_full(drive: Drive, full, rel, t_pulse: float, end=None):
     """A clamp across the switch on the drooping bus: the decay after a pulse of
     ``t_pulse`` s from a full capacitor (the loop ``full``: the source at each point; a
     linear coil, a flux-linkage curve or an eddy term), the current flowing on from the bus
     through the coil into the clamp (:func:`coildrive.model.flux_bus_decay.clamp_decay`,
     from the pulse's end state on the drooping bus, :func:`~coildrive.design.supply.bus_at`:
     with an eddy term the magnetising current; ``rel`` the release loop at the same points:
-    its resistance, and ``V_clamp`` = ``v_off + supply``)."""
+    its resistance, and ``V_clamp`` = ``v_off + supply``). ``end``: that state given
+    ``(A, V)`` -- a moving armature's seat run's at the pulse's end
+    (:attr:`~coildrive.model.armature_runs.PullInBatch.peak_end_bus`), the seated coil
+    decaying from it (the catch holds the armature)."""
     s = drive.supply
-    b = bus_at(drive, full, full.inductance)
-    i_e, v_e = model_of(b).state(np.full(np.shape(full.v_on), t_pulse), b)
+    if end is None:
+        b = bus_at(drive, full, full.inductance)
+        i_e, v_e = model_of(b).state(np.full(np.shape(full.v_on), t_pulse), b)
+    else:
+        i_e, v_e = end
     return clamp_decay(full.inductance, i_e, v_e, full.v_on, s.source_resistance, s.capacitance, rel.r_off,
                        rel.v_off + rel.supply)
 
@@ -634,6 +646,7 @@ def _boosted(drive: Drive, wd: Drive, pts: Points, name: str, winding: str, swit
         not_reached=not_reached, supply_j=e["supply_j"], copper_j=e["copper_j"], heat_j=e["heat_j"],
         switch_sense_j=e["switch_sense_j"], freewheel_j=e["freewheel_j"], returned_j=e["returned_j"],
         boost_j=e["boost_j"], eddy_j=e["eddy_j"], main_supply_j=e["main_supply_j"],
+        decay_charge_c=e["decay_charge_c"],
         stored_j=e["stored_j"], energy_corner=pts.label(e["k"]) + (", the boost at its highest" if e["high"]
                                                                    else ", the boost at its lowest"),
         decay_time_s=e["decay_time_s"], peak_switch_voltage_v=b.switch_voltage_v,

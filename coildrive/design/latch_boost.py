@@ -21,12 +21,16 @@ boosted peak does (:mod:`coildrive.design.boost`, physics :mod:`coildrive.model.
 *On a full bridge* (one coil, both polarities) the boost switch feeds the bridge's
 high-side rail and the main supply reaches it through a blocking diode: after each pulse
 the current returns up two body diodes and the boost switch's into the boost capacitor
-(:func:`return_decay`, :func:`coildrive.model.bridge.boost_return`), never into the main
+(:func:`return_decay`, :func:`coildrive.model.flux_bus_decay.boost_return`), never into the main
 bus. The pulse's energy balance gains ``returned_j`` (the capacitor's rise), the decay's
 ``int i^2 dt`` comes from its own balance, ``R_b`` is in the decay too, and the freewheel is
 the three diodes; the switches see one diode and ``R_b i`` more than the boosted peak's
 (the rail rides on the capacitor), and the boost recharges only what it net gives
-(:func:`bridge_figures`).
+(:func:`bridge_figures`). A linear coil's return is the series RLC's closed form; a
+flux-linkage curve's or an eddy term's the stepped or closed-form runs of
+:func:`coildrive.model.flux_bus_decay.boost_return` (the capacitor with no source behind
+it), whose ``int i^2 dt`` comes from the same balance with the field's ``int i dpsi`` and
+the eddy resistance's share of the return (in ``eddy_j``).
 
 Energy per pulse (the corner and side where the boost gives the most): from zero current
 back to zero the capacitor's ``1/2 C (V_b^2 - v_C^2)`` is exactly what the loop takes::
@@ -100,10 +104,11 @@ from ..config import Drive
 from ..errors import InputError
 from ..model import boost as model
 from ..model import converter_bus
-from ..model.bridge import RETURN_DROPS, boost_return
+from ..model.bridge import RETURN_DROPS
 from ..model.circuit import freewheel_element_energy, full_bridge, loop, open_inductance
 from ..model.eddy import EddyCoil, release_eddy_energy, stored_energy
 from ..model.flux_boost import FluxBoost
+from ..model.flux_bus_decay import boost_return
 from ..model.rl import decay_integrals, decay_time
 from . import boost
 from .result import BoostResult, Check
@@ -305,14 +310,15 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult, ends: dict | None
     for the other paths), and ``k`` the point, ``high`` the side;
     ``decay_time_s`` the longest time to zero (of the terminal current) after a pulse,
     ``end_current_a`` the highest (terminal) current it turns off, ``net_j`` the most
-    the boost net gives (drawn less returned) and ``heat_j`` the most copper heat (over
-    both sides). ``ends``: a moving
+    the boost net gives (drawn less returned), ``heat_j`` the most copper heat (over both
+    sides) and ``decay_charge_c`` with a clamp across the switch the most charge a decay
+    draws from the main supply (``int i dt``; 0 otherwise). ``ends``: a moving
     armature's pulse ends (:attr:`ArmaturePulse.ends`; a linear coil on one switch), else
     the still coil's closed form."""
     trip = b.trip_max_a
     bridge = full_bridge(wd)
     r_b = wd.supply.boost_resistance
-    best, t_zero_max, i_max, net_max, heat_max = None, 0.0, 0.0, 0.0, 0.0
+    best, t_zero_max, i_max, net_max, heat_max, q_max = None, 0.0, 0.0, 0.0, 0.0, 0.0
     for high in (False, True):
         if ends is None:
             bb = boost.boost_side(wd, lp, lp.inductance, high)
@@ -329,14 +335,16 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult, ends: dict | None
         sense = wd.board.sense
         r_sense = sense.resistance * sense_factor
         eddy = isinstance(ind, EddyCoil)
-        if bridge:   # back into the boost capacitor (module docstring, *On a full bridge*;
-            # a linear coil: config refuses a curve or an eddy term there)
+        if bridge:   # back into the boost capacitor (module docstring, *On a full bridge*)
             back = return_decay(wd, rel, i_top, v_top, bb.c)
-            t_zero, q_d, returned = back.zero_time, back.charge, back.returned
+            t_zero, q_d = back.zero_time, back.charge
+            returned = 0.5 * bb.c * (back.bus_at_zero**2 - v_top**2)
             fw = RETURN_DROPS * rel.diode(wd) * q_d
-            # int i^2 dt of the decay by its energy balance: the field's 1/2 L i^2 into the
-            # loop's resistance, the diodes and the capacitor
-            s_d = (0.5 * ind * i_top**2 - fw - returned) / (rel.r_off + r_b)
+            loss_d = back.eddy_energy if eddy else 0.0
+            # int i^2 dt of the decay by its energy balance: the field's int i dpsi (1/2 L i^2
+            # on a line; the magnetising branch's with an eddy term) into the loop's
+            # resistance, the diodes, the capacitor and the eddy resistance
+            s_d = (stored_energy(ind.magnetising if eddy else ind, i_top) - fw - returned - loss_d) / (rel.r_off + r_b)
         else:
             t_zero = decay_time(0.0, i_top, rel.r_off, rel.v_off, ind)
             q_d, s_d = decay_integrals(t_zero, i_top, rel.r_off, rel.v_off, ind)
@@ -353,7 +361,8 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult, ends: dict | None
                  # the on-time's share by the boost's balance, then the release's (the
                  # conduction, then the flux's tail through R_e alone)
                  "eddy_j": ((m.eddy_loss(t, bb) if ends is None else loss_on)
-                            + release_eddy_energy(i_top, rel.r_off, rel.v_off, ind) if eddy else 0.0 * drawn),
+                            + (loss_d if bridge else release_eddy_energy(i_top, rel.r_off, rel.v_off, ind))
+                            if eddy else 0.0 * drawn),
                  "stored_j": stored_energy(ind.magnetising if eddy else ind, i_top), "main_supply_j": main}
         # the armature's share: what the boost gave that no element took (zero current at both ends)
         parts["armature_j"] = (drawn + main - sum(parts[n] for n in ("copper_j", "switch_sense_j", "boost_j", "freewheel_j",
@@ -367,14 +376,19 @@ def energies(wd: Drive, lp, rel, sense_factor, b: BoostResult, ends: dict | None
         i_max = max(i_max, float(np.max(i_end)))
         net_max = max(net_max, float(np.max(drawn - returned)))
         heat_max = max(heat_max, float(np.max(parts["copper_j"])))
-    return {**best, "decay_time_s": t_zero_max, "end_current_a": i_max, "net_j": net_max, "heat_j": heat_max}
+        if wd.freewheel.type == "clamp" and not bridge:
+            q_max = max(q_max, float(np.max(q_d)))
+    return {**best, "decay_time_s": t_zero_max, "end_current_a": i_max, "net_j": net_max, "heat_j": heat_max,
+            "decay_charge_c": q_max}
 
 
 def return_decay(wd: Drive, rel, i0, v_c, c):
-    """A full bridge's fast decay of ``i0`` A after a pulse from the boost, back into the
-    boost capacitor of ``c`` F at ``v_c`` V at the points of the release loop ``rel``
-    (:func:`coildrive.model.bridge.boost_return`)."""
-    return boost_return(i0, v_c, c, rel.r_off, wd.supply.boost_resistance, rel.inductance, rel.diode(wd))
+    """A full bridge's fast decay of ``i0`` A (with an eddy term the magnetising current)
+    after a pulse from the boost, back into the boost capacitor of ``c`` F at ``v_c`` V at
+    the points of the release loop ``rel``
+    (:func:`coildrive.model.flux_bus_decay.boost_return`: a linear coil, a curve or an eddy
+    term; a :class:`~coildrive.model.bus_decay.FastDecay`)."""
+    return boost_return(rel.inductance, i0, v_c, c, rel.r_off, wd.supply.boost_resistance, rel.diode(wd))
 
 
 def bridge_figures(wd: Drive, b: BoostResult, e: dict) -> BoostResult:
@@ -504,7 +518,18 @@ class MainBus:
     at there (V_1 of :mod:`coildrive.model.converter_bus`). ``None`` where the source behind
     ``R_s`` cannot carry the draw at all: it delivers at most ``source_limit_w`` = ``V_s^2 /
     (4 R_s)`` at the lowest source. Units V, ohm, F, W, s (``period_s`` and ``spacing_s``
-    null in the JSON where no interval is safe: then one run from a full bus)."""
+    null in the JSON where no interval is safe: then one run from a full bus).
+
+    With a clamp across each winding's switch each pulse's decay draws from the main bus
+    too (its current flows from it through the winding into the clamp): at most
+    ``decay_charge_c`` C (the pulses' :attr:`~coildrive.design.latch.PulseResult.decay_charge_c`)
+    within ``longest_decay_s`` s of the pulse's end. A run may then start as late as the
+    decay's end (a converter held off until the current's zero), so ``spacing_s`` is
+    ``period_s`` less the longest pulse and the longest decay; ``clamp_drop_v`` bounds how
+    much further the decays pull the bus below the runs' orbit
+    (:func:`coildrive.model.converter_bus.clamp_drop`), and ``lowest_bus_v`` and ``droop_v``
+    include it (a bound under every schedule, the decays overlapping the runs or not; ``None``
+    where that bound finds no floor)."""
 
     source_resistance_ohm: float
     capacitance_f: float
@@ -519,13 +544,17 @@ class MainBus:
     source_limit_w: float
     longest_pulse_s: float = 0.0
     spacing_s: float = math.inf
+    decay_charge_c: float = 0.0
+    longest_decay_s: float = 0.0
+    clamp_drop_v: float = 0.0
 
 
 def main_bus(drive: Drive, pulses: list, interval: float) -> tuple[MainBus | None, list[Check]]:
     """The drooping main bus under the boost converter's recharges (:class:`MainBus`) at both
     ends of the source (``supply.min``, ``supply.max``), pulses at least ``interval`` s apart
-    (their runs ``interval`` less the longest pulse), and its check ``boost_main_bus`` (the
-    source carries the converter's draw); ``(None, [])`` on a stiff main supply. One
+    (their runs ``interval`` less the longest pulse; with a clamp across the switch less its
+    longest decay too, whose draw :class:`MainBus` bounds), and its check ``boost_main_bus``
+    (the source carries the converter's draw); ``(None, [])`` on a stiff main supply. One
     function for both topologies: a reset winding's pulses and a full bridge's (whose
     recharge is of the net energy, :func:`bridge_figures`)."""
     s = drive.supply
@@ -535,11 +564,18 @@ def main_bus(drive: Drive, pulses: list, interval: float) -> tuple[MainBus | Non
     boosted = [p for p in pulses if p.boost is not None]
     t_draw = max((p.boost.recharge_time_s or 0.0 for p in boosted), default=0.0)
     longest = max((p.time_s for p in boosted), default=0.0)
+    clamped = drive.freewheel.type == "clamp" and not full_bridge(drive)   # each decay draws on it
+    q = max((p.decay_charge_c for p in boosted), default=0.0) if clamped else 0.0
+    t_q = max((p.decay_time_s for p in boosted), default=0.0) if clamped else 0.0
     period = interval   # (inf where no interval is safe: one run from a full bus)
-    spacing = max(period - longest, t_draw)   # (runs that may touch: one long run, the floor)
+    spacing = max(period - longest - t_q, t_draw)   # (runs that may touch: one long run, the floor)
     v_s = np.array([s.min, s.max])
     low = converter_bus.orbit_low(v_s, s.source_resistance, s.capacitance, p_in, t_draw, spacing)
     floor = converter_bus.roots(v_s, s.source_resistance, p_in)[0]
+    drop = (converter_bus.clamp_drop(low, q, t_q, period, s.source_resistance, s.capacitance, p_in) if clamped
+            else np.zeros_like(low))
+    carried_runs = bool(np.all(np.isfinite(low)))
+    low = low - drop
     carried = bool(np.all(np.isfinite(low)))
     k = int(np.argmin(low)) if carried else 0
     limit = s.min**2 / (4.0 * s.source_resistance)
@@ -548,7 +584,14 @@ def main_bus(drive: Drive, pulses: list, interval: float) -> tuple[MainBus | Non
         draw_time_s=t_draw, period_s=period, source_v=float(v_s[k]),
         lowest_bus_v=float(low[k]) if carried else None, lowest_bus_corner=f"source {v_s[k]:.4g} V",
         droop_v=float(v_s[k] - low[k]) if carried else None, floor_v=float(floor[k]) if carried else None,
-        source_limit_w=limit, longest_pulse_s=longest, spacing_s=spacing)
+        source_limit_w=limit, longest_pulse_s=longest, spacing_s=spacing, decay_charge_c=q, longest_decay_s=t_q,
+        clamp_drop_v=float(drop[k]) if carried else 0.0)
+    if carried_runs and not carried:
+        return bus, [Check("boost_main_bus", False,
+                           f"each pulse's decay through the clamp draws up to {q * 1e3:.4g} mC from the main bus "
+                           f"besides the boost converter's {p_in:.4g} W: no floor under the bus is found (it may "
+                           "collapse) -- a lower supply.source_resistance, a larger supply.capacitance or a "
+                           "smaller supply.boost_power")]
     if not carried:
         return bus, [Check("boost_main_bus", False,
                            f"the source at {s.min:.4g} V behind {s.source_resistance:.4g} ohm delivers at most "
@@ -559,12 +602,15 @@ def main_bus(drive: Drive, pulses: list, interval: float) -> tuple[MainBus | Non
              if math.isfinite(period) else "once")
     back = ("; each pulse's fast decay returns into the boost capacitor, so it recharges the net"
             if full_bridge(drive) else "")
+    if clamped:
+        back = (f"; each pulse's decay through the clamp draws up to {q * 1e3:.4g} mC from it in "
+                f"{t_q * 1e3:.4g} ms, at most {bus.clamp_drop_v:.4g} V more")
     return bus, [Check("boost_main_bus", True,
                        f"the boost converter draws {p_in:.4g} W from the main bus for {t_draw * 1e3:.4g} ms a "
                        f"pulse ({every}): the bus falls {bus.droop_v:.4g} V to "
                        f"{bus.lowest_bus_v:.4g} V at its {bus.lowest_bus_corner} (a steady draw settles at "
-                       f"{bus.floor_v:.4g} V); the pulses run from the boost and their freewheel paths return "
-                       f"nothing to it{back}")]
+                       f"{bus.floor_v:.4g} V); the pulses run from the boost"
+                       + (back if clamped else f" and their freewheel paths return nothing to it{back}"))]
 
 
 def _sample_armature(wd: Drive, lp, rel, l_factor, b: BoostResult, trip, v_factor, c_factor) -> tuple:

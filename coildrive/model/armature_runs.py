@@ -89,6 +89,10 @@ class PullInBatch:
     #: run's bound plus the capacitor loop's time scale where the trip never comes), at the
     #: integrator's accepted steps and its end; NaN where the run does not seat.
     seated_top: np.ndarray | None = None
+    #: On a drooping bus with a ``peak_time`` (else ``None``): the capacitor (V) then, where
+    #: the pulse ends (a latching coil's clamped decay starts from it, with
+    #: ``peak_end_current``).
+    peak_end_bus: np.ndarray | None = None
 
     @property
     def dip_depth(self) -> np.ndarray:
@@ -352,11 +356,12 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     if p.eddy is not None and not sensed:   # the dip as the sense resistor sees it: the terminal current
         dip_current, hump = p.terminal(dip_current, True), p.terminal(hump, True)
     # current at the end of the peak phase
+    peak_bus = None
     if want is None:
         peak_end = np.full(n, np.nan)
     elif droop:
-        peak_end, low = _droop_peak_end(p, want, t_start, moves, seated, seat_time, seat_current,
-                                        seat_bus, query_y, low, b_open, seat_y, stiff, rtol)
+        peak_end, low, peak_bus = _droop_peak_end(p, want, t_start, moves, seated, seat_time, seat_current,
+                                                  seat_bus, query_y, low, b_open, seat_y, stiff, rtol)
     else:
         before = want < np.where(moves, t_start, np.inf)
         after = seated & (want >= seat_time)
@@ -375,7 +380,7 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
                        lowest_bus=None if low is None else low[0],
                        lowest_bus_time=None if low is None else low[1], seat_bus=seat_bus,
                        seat_charge=seat_q, seat_square=seat_s, trip_time=trip_time, trip_state=trip_y,
-                       seated_top=seated_top)
+                       seated_top=seated_top, peak_end_bus=peak_bus)
 
 
 def _early_trip(p: ArmatureParams, trip, t_start, eddy_loss: bool = False):
@@ -487,12 +492,13 @@ def _held_rise(p: ArmatureParams, i_inf, stiff, rtol, want, query_y, low, low_un
 
 def _droop_peak_end(p: ArmatureParams, want, t_start, moves, seated, seat_time, seat_current,
                     seat_bus, query_y, low, b_open, seat_y=None, stiff=None, rtol: float = 1e-7):
-    """On a drooping bus: the current (A) at ``want`` s, and the lowest bus (2 x N: V, s)
-    over ``[0, want]`` completed -- before the motion the open coil's closed form, during
-    it the flight's state there (``query_y``), on the seat the seated coil's closed form
-    from the seat's state (:func:`coildrive.model.supply.lowest_from`). With curves
-    (``seat_y``: the state on the seat) the rise before the motion was flown already
-    (``query_y`` holds it) and the seat is flown held from ``seat_y`` to ``want``."""
+    """On a drooping bus: the current (A) at ``want`` s, the lowest bus (2 x N: V, s) over
+    ``[0, want]`` completed, and the bus (V) at ``want`` -- before the motion the open
+    coil's closed form, during it the flight's state there (``query_y``), on the seat the
+    seated coil's closed form from the seat's state
+    (:func:`coildrive.model.supply.lowest_from`). With curves (``seat_y``: the state on the
+    seat) the rise before the motion was flown already (``query_y`` holds it) and the seat
+    is flown held from ``seat_y`` to ``want``."""
     before = want < np.where(moves, t_start, np.inf)
     after = seated & (want >= seat_time)
     during = ~before & ~after
@@ -506,20 +512,20 @@ def _droop_peak_end(p: ArmatureParams, want, t_start, moves, seated, seat_time, 
         i_after = p.current(fl.y[0], 0.0)
         got = (before | during) & np.isfinite(query_y[5]) & (query_y[5] < low[0])
         low = np.stack([np.where(got, query_y[5], low[0]), np.where(got, want, low[1])])
-        return np.where(after, i_after, p.current(query_y[0], query_y[1])), low
+        return np.where(after, i_after, p.current(query_y[0], query_y[1])), low, np.where(after, fl.y[5], query_y[5])
     b_seat = p.bus(False)
     dt = np.where(after, want - seat_time, 0.0)
     i0 = np.where(after, seat_current, 0.0)
     u0 = np.where(after, seat_bus, p.v_on)
-    i_after = bus_model.state_from(dt, b_seat, i0, u0)[0]
+    i_after, u_after = bus_model.state_from(dt, b_seat, i0, u0)
     v_after, t_after = bus_model.lowest_from(dt, b_seat, i0, u0)
     lower = after & (v_after < low[0])
     low = np.stack([np.where(lower, v_after, low[0]), np.where(lower, seat_time + t_after, low[1])])
     got = during & np.isfinite(query_y[5]) & (query_y[5] < low[0])
     low = np.stack([np.where(got, query_y[5], low[0]), np.where(got, want, low[1])])
-    i_end = np.where(before, bus_model.current(np.where(before, want, 0.0), b_open),
-                     np.where(after, i_after, p.current(query_y[0], query_y[1])))
-    return i_end, low
+    i_b, u_b = bus_model.state(np.where(before, want, 0.0), b_open)
+    i_end = np.where(before, i_b, np.where(after, i_after, p.current(query_y[0], query_y[1])))
+    return i_end, low, np.where(before, u_b, np.where(after, u_after, query_y[5]))
 
 
 def peak_current_closed_form(p: ArmatureParams, pin: PullInBatch, peak_time):

@@ -202,30 +202,14 @@ def boost_return(i0, v_c, c, r_off, r_b, inductance, v_diode) -> PumpUp:
     pulse goes up the boost switch's body diode back into the boost capacitor of ``c`` F at
     ``v_c`` V (the main supply's blocking diode keeps it off the main bus), through the
     release loop's ``r_off`` ohm, the boost path's ``r_b`` and :data:`RETURN_DROPS` drops
-    of ``v_diode`` V: :func:`pump_up`'s series RLC onto ``c`` (a linear coil)."""
+    of ``v_diode`` V: :func:`pump_up`'s series RLC onto ``c`` (a linear coil; any coil's,
+    the one the design runs: :func:`coildrive.model.flux_bus_decay.boost_return`)."""
     return pump_up(i0, v_c, c, np.asarray(r_off, float) + r_b, inductance, v_diode, drops=RETURN_DROPS)
 
 
 def boost_return_trace(t, i0, v_c, c, r_off, r_b, inductance, v_diode):
     """:func:`boost_return`'s current (A) and boost capacitor (V) ``t`` s into the decay."""
     return pump_up_trace(t, i0, v_c, c, r_off + r_b, inductance, v_diode, drops=RETURN_DROPS)
-
-
-def boost_return_drop(i_level, i0, v_c, c, r_off, r_b, inductance, v_diode) -> tuple[float, float]:
-    """When :func:`boost_return`'s current (one point) falls to ``i_level`` A (``0 <=
-    i_level <= i0``): ``(t s, the capacitor V then)``. The current falls monotonically to
-    its first zero (``L di/dt = -(R i + n V_d + v_C)`` with every term positive), so a
-    bisection of the closed form on that stretch (:data:`RETURN_BISECTION_STEPS` halvings)."""
-    lo, hi = 0.0, float(boost_return(i0, v_c, c, r_off, r_b, inductance, v_diode).zero_time)
-    for _ in range(RETURN_BISECTION_STEPS):
-        mid = 0.5 * (lo + hi)
-        i_mid = float(boost_return_trace(mid, i0, v_c, c, r_off, r_b, inductance, v_diode)[0])
-        lo, hi = (mid, hi) if i_mid > i_level else (lo, mid)
-    return hi, float(boost_return_trace(hi, i0, v_c, c, r_off, r_b, inductance, v_diode)[1])
-
-
-#: Halvings of :func:`boost_return_drop`'s bracket: 2^-60 of the decay, far below a sample.
-RETURN_BISECTION_STEPS = 60
 
 
 #: Runge-Kutta steps of a saturating coil's pump-up, over the current from ``i0`` to 0.

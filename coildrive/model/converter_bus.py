@@ -114,3 +114,45 @@ def trace(t, starts, lengths, v_s, r_s, c, p) -> np.ndarray:
         out[on] = under_draw(v, t[on] - start, v_s, r_s, c, p)
         v, now = float(under_draw(v, length, v_s, r_s, c, p)), start + length
     return out
+
+
+#: Fixed-point steps of :func:`clamp_drop` (each one lowers the floor it assumes).
+DROP_STEPS = 200
+
+
+def clamp_drop(low, q, t_q, period, r_s, c, p) -> np.ndarray:
+    """A bound (V) on how much further the bus falls below ``low`` V (its lowest under the
+    converter's draws alone, :func:`orbit_low`) when, besides, a load takes a charge of at
+    most ``q`` C in at most ``t_q`` s once every ``period`` s (a latching coil's clamped
+    decay after each pulse from the boost: the current flows from the bus through the
+    winding into the clamp). With ``w`` the bus without that load less the bus with it (the
+    same draws), ``C dw/dt = -w/R_s + P_on w/(v v') + i_q``: while both buses stay above a
+    floor ``v_f`` with ``kappa = 1/R_s - P/v_f^2 > 0`` (the draw's own slope below the
+    source's), ``C dw/dt <= -kappa w + i_q``, ``w >= 0``, so each charge adds at most
+    ``q/C`` and then decays at ``kappa/C`` at least; the charge ``n`` periods back (its load
+    over within ``t_q``) adds at most ``q/C e^(-kappa (n period - t_q)/C)``, and summed::
+
+        w <= q/C (1 + e^(kappa t_q/C) a / (1 - a)),    a = e^(-kappa period/C)
+
+    ``v_f = low - w`` itself, so the bound is the fixed point of that map from ``w = q/C``
+    (it only rises: a lower floor, a smaller ``kappa``); NaN where it has none (``kappa``
+    reaches 0, or the floor 0: the bus may collapse). ``period`` ``inf``: one charge,
+    ``q/C``. Broadcasts over points; V, C, s, ohm, F, W."""
+    low, q, t_q, period, r_s, c, p = (np.asarray(x, float) for x in (low, q, t_q, period, r_s, c, p))
+    w = q / c
+    bad = ~np.isfinite(low)
+    for _ in range(DROP_STEPS):
+        v_f = low - w
+        with np.errstate(divide="ignore", invalid="ignore"):
+            kappa = 1.0 / r_s - p / (v_f * v_f)
+        bad = bad | ~(v_f > 0.0) | ~(kappa > 0.0)
+        k = np.where(bad, 1.0, kappa)
+        a = np.where(np.isfinite(period), np.exp(-k * np.where(np.isfinite(period), period, 0.0) / c), 0.0)
+        nxt = q / c * (1.0 + np.exp(k * t_q / c) * a / (1.0 - a))
+        done = np.abs(nxt - w) <= 1e-12 * np.abs(low)
+        w = nxt
+        if np.all(done | bad):
+            break
+    else:
+        bad = bad | ~done
+    return np.where(bad, np.nan, w)

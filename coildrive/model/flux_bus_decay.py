@@ -405,3 +405,42 @@ def trace(t, coil, i0, v0, v_s, r_s, c, r, v_d, sink: bool = True):
         i_n, u_n = flux_bus.state(np.maximum(t - t_a, 0.0), alone)
         i, u = np.where(late, terminal(i_n, u_n, alone), i), np.where(late, u_n, u)
     return np.maximum(i, 0.0), -u - 2.0 * v_d
+
+
+# --------------------------------------------------------------------------- into the boost capacitor
+def _return_args(i0, v_c, r_off, r_b, v_d) -> tuple:
+    """:func:`fast_decays`' ``(v_s, r_s, r, v_d)`` for :func:`boost_return`: the
+    source at the capacitor's own voltage (the feed blocked from the start, so the
+    capacitor alone), the loop ``r_off + r_b`` and the three drops as two of ``1.5 V_d``
+    (the circuit holds only their sum)."""
+    from .bridge import RETURN_DROPS
+
+    v_c = np.asarray(v_c, float)
+    return (v_c, np.ones_like(v_c), np.asarray(r_off, float) + np.asarray(r_b, float),
+            0.5 * RETURN_DROPS * np.asarray(v_d, float))
+
+
+def boost_return(coil, i0, v_c, c, r_off, r_b, v_d, i_drop=0.0) -> FastDecay:
+    """A full bridge's fast decay of ``i0`` A after a pulse from the boost, back up the boost
+    switch's body diode into the boost capacitor of ``c`` F at ``v_c`` V
+    (:func:`coildrive.model.bridge.boost_return`'s circuit) whatever the coil: a linear
+    ``L`` H, a flux-linkage curve or an eddy term on either (``i0``, ``i_drop`` magnetising
+    currents). No source stands behind the capacitor (the main supply's diode blocks), so
+    this is :func:`fast_decays` on a supply that cannot sink, its feed blocked from the start
+    (the source put at the capacitor's own voltage: the capacitor alone from ``t = 0``),
+    through ``r_off + r_b`` ohm and :data:`coildrive.model.bridge.RETURN_DROPS` body-diode
+    drops of ``v_d`` V: a linear coil's series RLC closed form, an eddy term's on a line
+    closed form too, a curve's stepped in the falling current
+    (:func:`coildrive.model.bridge.flux_pump_up`), a curve's with an eddy term on its
+    equivalent plain circuit with no source. ``bus_at_zero`` is the capacitor when the
+    (terminal) current stops, ``charge`` its ``int i dt``, ``eddy_energy`` the eddy
+    resistance's loss over the whole release (the conduction, then the flux's tail)."""
+    v_s, r_s, r, vd = _return_args(i0, v_c, r_off, r_b, v_d)
+    return fast_decays(coil, i0, [v_c], i_drop, v_s, r_s, c, r, vd, sink=False)[0]
+
+
+def boost_return_trace(t, coil, i0, v_c, c, r_off, r_b, v_d):
+    """The terminal current (A) and the boost capacitor (V) ``t`` s into :func:`boost_return`'s
+    decay of one point (:func:`trace` of the same circuit), up to the current's zero."""
+    v_s, r_s, r, vd = _return_args(i0, v_c, r_off, r_b, v_d)
+    return trace(t, coil, i0, v_c, v_s, r_s, c, r, vd, sink=False)

@@ -29,7 +29,8 @@ armature the set pulse's run from it, the capacitor a state), the top of the coi
 capacitor less ``R_b i``; after the pulse the winding's freewheel path returns its current
 to the top, which the main supply holds (the boost switch is off). On a full bridge the
 boost switch feeds the high-side rail and the fast decay returns up its body diode into
-the boost capacitor (:func:`coildrive.model.bridge.boost_return`): the rail is the
+the boost capacitor (:func:`coildrive.model.flux_bus_decay.boost_return`: a linear coil, a
+curve or an eddy term, the current then the terminal one): the rail is the
 capacitor + ``V_d + R_b i`` then. A ``boost_v`` column is the capacitor through both
 pulses, recharged at ``boost_power`` after each. On a drooping main supply a
 ``main_bus_v`` column is the main bus (:mod:`coildrive.model.converter_bus`: the
@@ -52,7 +53,6 @@ from . import boost as boost_model
 from . import eddy, flux_bus, flux_bus_decay
 from . import supply as bus_model
 from .eddy import EddyCoil
-from .bridge import boost_return, boost_return_trace
 from .circuit import full_bridge, loop
 from .flux import FluxCoil
 from .flux_bus_decay import fast_decays
@@ -90,13 +90,16 @@ class LatchWaveform:
 
 
 def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_factor: float,
-           t_pulse: float, points: int):
+           t_pulse: float, points: int, main_v: float | None = None):
     """One pulse from zero: ``(t, i, on, bus, t_zero, release loop, gap)`` relative to its
     start (s, A, 0/1, the bus while on V), the time its current reaches zero, and with a
     moving armature its gap (m; 0 through the decay: the catch holds it), else ``None``.
     With an eddy term (:mod:`coildrive.model.eddy`, a linear or a saturating branch) ``i``
     is the terminal current (what the sense and the switches carry): ``(v + R_e i_m)/(R +
-    R_e)`` on, ``(R_e i_m - V_off)/(R_off + R_e)`` freewheeling until it reaches zero."""
+    R_e)`` on, ``(R_e i_m - V_off)/(R_off + R_e)`` freewheeling until it reaches zero.
+    From the boost with a clamp across the switch on a drooping main supply the decay draws
+    on the main bus from ``main_v`` V at the pulse's end (``supply``, a full bus, by default;
+    the pulse itself draws nothing from it), and ``bus`` is that main bus in the decay."""
     lp = loop(drive, supply, coil_temp, r_factor, l_factor)
     rel = loop(drive, supply, coil_temp, r_factor, l_factor, path="release")
     v, r_on = float(lp.v_on), float(lp.r_on)
@@ -125,17 +128,22 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
     i_top = float(i_on[-1])
     r_off, v_off = float(rel.r_off), float(rel.v_off)
     fast = fast_decay_after(drive, rel, i_top, float(bus[-1]))
-    clamped = clamp_decay_after(drive, rel, i_top, float(bus[-1]))
+    # (from the boost the decay's current comes from the main bus, not the boost capacitor)
+    clamped = clamp_decay_after(drive, rel, i_top, (supply if main_v is None else main_v) if drive.supply.boosted
+                                else float(bus[-1]))
+    returning = drive.supply.boosted and full_bridge(drive)
     if clamped is not None:   # a clamp on the drooping bus: the decay draws the capacitor down further
         tz = float(clamped.zero_time)
         t_d = np.linspace(0.0, tz, points + 1)[1:]
-        i_d, bus_d = flux_bus_decay.clamp_trace(t_d, rel.inductance, i_top, float(bus[-1]),
+        v_end = (supply if main_v is None else main_v) if drive.supply.boosted else float(bus[-1])
+        i_d, bus_d = flux_bus_decay.clamp_trace(t_d, rel.inductance, i_top, v_end,
                                                 *_clamp_args(drive, rel))   # (the terminal current)
         i_d[-1] = 0.0   # (the zero, to rounding)
-    elif drive.supply.boosted and full_bridge(drive):   # back into the boost capacitor, up Q_b's body diode
-        tz = float(boost_return(i_top, float(v_c[-1]), *return_args(drive, rel)).zero_time)
+    elif returning:   # back into the boost capacitor, up Q_b's body diode (the terminal current)
+        coil, args = return_args(drive, rel)
+        tz = float(flux_bus_decay.boost_return(coil, i_top, float(v_c[-1]), *args).zero_time)
         t_d = np.linspace(0.0, tz, points + 1)[1:]
-        i_d, v_cd = boost_return_trace(t_d, i_top, float(v_c[-1]), *return_args(drive, rel))
+        i_d, v_cd = flux_bus_decay.boost_return_trace(t_d, coil, i_top, float(v_c[-1]), *args)
         i_d[-1] = 0.0   # (the zero, to rounding)
         bus_d = v_cd + float(rel.diode(drive)) + drive.supply.boost_resistance * i_d   # the bridge's rail
     elif fast is None:
@@ -150,7 +158,7 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
         i_d[-1] = 0.0   # (the zero, to rounding)
     if r_e is not None:   # the magnetising currents to the terminal current (model.eddy): on, then freewheeling
         i_on = eddy.terminal(i_on, bus, r_on, r_e)
-        if fast is None and clamped is None:
+        if fast is None and clamped is None and not returning:
             i_d = np.maximum(eddy.terminal(i_d, -v_off, r_off, r_e), 0.0)
     t = np.concatenate([t_on, t_pulse + t_d])
     i = np.concatenate([i_on, i_d])
@@ -161,11 +169,12 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
 
 def return_args(drive: Drive, rel) -> tuple:
     """A full bridge's return into the boost capacitor at one point
-    (:func:`coildrive.model.bridge.boost_return`): ``(C_b, r_off, R_b, L, V_d)``, the
-    capacitor at its nominal capacitance."""
+    (:func:`coildrive.model.flux_bus_decay.boost_return`): ``(coil, (C_b, r_off, R_b,
+    V_d))``, the coil the release loop's (a linear ``L`` H, a flux-linkage curve or an eddy
+    term), the capacitor at its nominal capacitance."""
     s = drive.supply
-    return (s.boost_capacitance, *(float(np.ravel(x)[0]) for x in (rel.r_off, s.boost_resistance, rel.inductance,
-                                                                     rel.diode(drive))))
+    return rel.inductance, (s.boost_capacitance, *(float(np.ravel(x)[0]) for x in (rel.r_off, s.boost_resistance,
+                                                                                     rel.diode(drive))))
 
 
 def _fast_args(drive: Drive, rel, i0: float, v0: float) -> tuple:
@@ -225,37 +234,43 @@ def boost_of(drive: Drive, r_on: float, inductance):
 
 def boost_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float, r_factor: float,
                  l_factor: float, time, set_time: float, reset_time: float, gap: float,
-                 seating=None) -> np.ndarray:
+                 seating=None, holds=(0.0, 0.0)) -> np.ndarray:
     """The boost capacitor (V) through both pulses: each pulse draws it down from full
     charge, then the converter recharges it at ``boost_power``
     (:func:`coildrive.model.boost.voltage_trace`); the reset pulse starts from full charge
     (the interval includes the recharge). A full bridge's fast decay returns into it after
-    each pulse (:func:`coildrive.model.bridge.boost_return`): the converter's charge from
+    each pulse (:func:`coildrive.model.flux_bus_decay.boost_return`): the converter's charge from
     the pulse's end is added in energy, ``v^2 = v_r^2 + 2 P (t - t_end) / C`` up to ``V_b``
     (``v_r`` the return's capacitor; their coupling in the decay left out, as the design's
     recharge of the net energy does). ``seating``: with a moving armature the set
     pulse's ``(t, i, on, top of the coil)`` (:func:`pulse`): its capacitor is the run's
     (the top plus ``R_b i``), then the same recharge
-    (:func:`coildrive.model.boost.recharge_voltage`)."""
+    (:func:`coildrive.model.boost.recharge_voltage`). ``holds``: per pulse how long (s)
+    after its end the converter waits before it recharges (a clamp's decay on a drooping
+    main supply: until the current's zero, :func:`_decay_stretch`)."""
     out = []
-    for wd, start, length, part in ((drive, 0.0, set_time, time < gap), (reset_drive, gap, reset_time, time >= gap)):
+    for wd, start, length, part, hold in ((drive, 0.0, set_time, time < gap, holds[0]),
+                                          (reset_drive, gap, reset_time, time >= gap, holds[1])):
         lp = loop(wd, supply, coil_temp, r_factor, l_factor)
         if seating is not None and wd is drive:
             run_t, v_c = _seating_boost(wd, seating)
             dt = time - start
-            after = boost_model.recharge_voltage(float(v_c[-1]), np.maximum(dt - length, 0.0),
+            after = boost_model.recharge_voltage(float(v_c[-1]), np.maximum(dt - length - hold, 0.0),
                                                  wd.supply.boost_capacitance, wd.supply.boost_power, wd.supply.boost)
             trace = np.where(dt <= length, np.interp(dt, run_t, v_c), after)
         else:
             b = boost_of(wd, float(lp.r_on), lp.inductance)
-            trace = boost_model.voltage_trace(time - start, length, b, wd.supply.boost_power)
+            dt = time - start   # (held at its end for `hold` s, then the recharge)
+            trace = boost_model.voltage_trace(np.where(dt > length, np.maximum(dt - hold, length), dt), length, b,
+                                              wd.supply.boost_power)
         if full_bridge(wd):
             rel = loop(wd, supply, coil_temp, r_factor, l_factor, path="release")
-            i_end, v_end = (float(x) for x in boost_model.state(length, b))
-            args = return_args(wd, rel)
+            i_end, v_end = (float(x) for x in boost_model.of(b).state(length, b))
+            coil, args = return_args(wd, rel)
             dt = np.maximum(time - start - length, 0.0)
-            v_r = boost_return_trace(np.minimum(dt, float(boost_return(i_end, v_end, *args).zero_time)),
-                                     i_end, v_end, *args)[1]
+            v_r = flux_bus_decay.boost_return_trace(
+                np.minimum(dt, float(flux_bus_decay.boost_return(coil, i_end, v_end, *args).zero_time)),
+                coil, i_end, v_end, *args)[1]
             after = boost_model.recharge_voltage(v_r, dt, wd.supply.boost_capacitance, wd.supply.boost_power,
                                                  wd.supply.boost)
             trace = np.where(time - start <= length, trace, after)
@@ -280,7 +295,7 @@ def _main_bus_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp:
     resting in between (:func:`coildrive.model.converter_bus.trace`). ``seating``: with a
     moving armature the set pulse's (:func:`boost_column`): ``v_end`` is its run's. On a
     full bridge ``v_end`` is the capacitor after the fast decay's return
-    (:func:`coildrive.model.bridge.boost_return`): the converter puts back the net, as the
+    (:func:`coildrive.model.flux_bus_decay.boost_return`): the converter puts back the net, as the
     ``boost_v`` column's recharge reaches ``V_b`` once the return is over."""
     from . import converter_bus
 
@@ -297,13 +312,66 @@ def _main_bus_column(drive: Drive, reset_drive: Drive, supply: float, coil_temp:
             c_b = float(b.c)
             if full_bridge(wd):   # the decay's return into the capacitor first
                 rel = loop(wd, supply, coil_temp, r_factor, l_factor, path="release")
-                ret = boost_return(i_end, v_end, *return_args(wd, rel))
-                v_end = float(boost_return_trace(ret.zero_time, i_end, v_end, *return_args(wd, rel))[1])
+                coil, args = return_args(wd, rel)
+                v_end = float(flux_bus_decay.boost_return(coil, i_end, v_end, *args).bus_at_zero)
         draw = 0.5 * c_b * (s.boost**2 - v_end**2) / s.boost_power if s.boost_power > 0 else 0.0
         starts.append(start + length)
         lengths.append(min(draw, nxt - start - length))
     return converter_bus.trace(time, starts, lengths, supply, s.source_resistance, s.capacitance,
                                s.converter_draw)
+
+
+def _clamped_main(drive: Drive) -> bool:
+    """Pulses from the boost with a clamp across each winding's switch on a drooping main
+    supply: each decay draws on the main bus (:func:`_clamped_main_column`)."""
+    s = drive.supply
+    return s.boosted and s.droops and drive.freewheel.type == "clamp" and not full_bridge(drive)
+
+
+def _decay_stretch(wd: Drive, supply: float, coil_temp: float, r_factor: float, l_factor: float, length: float,
+                   t, on, bus, t_zero: float, nxt: float, start: float = 0.0, seating=None) -> tuple:
+    """One pulse's stretch of the main bus (:func:`_clamped_main_column`): ``(decay start s,
+    its zero s, the decay's sample times s and main bus V, the converter's run s after it)``
+    -- the run puts the pulse's ``1/2 C (V_b^2 - v_end^2)`` back at ``boost_power`` from the
+    current's zero (a converter held off until then), ending by ``nxt`` s (the next pulse).
+    ``seating``: a moving armature's set pulse (:func:`boost_column`): ``v_end`` its run's."""
+    s = wd.supply
+    if seating is not None:
+        v_end = float(_seating_boost(wd, seating)[1][-1])
+    else:
+        lp = loop(wd, supply, coil_temp, r_factor, l_factor)
+        b = boost_of(wd, float(lp.r_on), lp.inductance)
+        v_end = float(boost_model.of(b).state(length, b)[1])
+    c_b = s.boost_capacitance
+    draw = 0.5 * c_b * (s.boost**2 - v_end**2) / s.boost_power if s.boost_power > 0 and c_b > 0 else 0.0
+    off = on == 0
+    return start + length, t_zero, t[off], bus[off], max(min(draw, nxt - t_zero), 0.0)
+
+
+def _clamped_main_column(time, supply: float, s, stretches) -> np.ndarray:
+    """The drooping main bus (V) at ``time`` s from a full bus at ``supply`` V when each
+    pulse's clamped decay draws on it (:func:`_decay_stretch`'s ``stretches``, in order): at
+    rest until the decay (:func:`coildrive.model.converter_bus.resting`), the decay's own
+    bus (:func:`coildrive.model.flux_bus_decay.clamp_trace`, from the bus there), then the
+    converter's run (``under_draw``) and at rest again."""
+    from . import converter_bus
+
+    t = np.asarray(time, float)
+    out = np.empty(t.shape)
+    v, now = float(supply), 0.0
+    p_in = s.converter_draw
+    for t_a, t_b, t_d, v_d, run in list(stretches) + [(np.inf, np.inf, None, None, 0.0)]:
+        rest = (t >= now) & (t <= t_a)
+        out[rest] = converter_bus.resting(v, t[rest] - now, supply, s.source_resistance, s.capacitance)
+        if not np.isfinite(t_a):
+            break
+        dec = (t > t_a) & (t <= t_b)
+        out[dec] = np.interp(t[dec], t_d, v_d)
+        v = float(v_d[-1])
+        on = (t > t_b) & (t < t_b + run)
+        out[on] = converter_bus.under_draw(v, t[on] - t_b, supply, s.source_resistance, s.capacitance, p_in)
+        v, now = float(converter_bus.under_draw(v, run, supply, s.source_resistance, s.capacitance, p_in)), t_b + run
+    return out
 
 
 def _seating(drive: Drive, lp, l_factor: float, t_pulse: float, points: int, supply: float,
@@ -342,9 +410,15 @@ def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: 
     """The set pulse at 0 and the reset pulse at ``interval`` s (``reset_drive``: the drive
     as its winding sees it, :func:`coildrive.design.latch.winding_drive`)."""
     ts, is_, ons, buses, tz_s, rel_s, gap_s = pulse(drive, supply, coil_temp, r_factor, l_factor, set_time, points)
-    tr, ir, onr, busr, tz_r, rel_r, _ = pulse(reset_drive, supply, coil_temp, r_factor, l_factor, reset_time,
-                                            points)
     gap = max(interval, tz_s)
+    clamped = _clamped_main(drive)
+    main_r = None
+    if clamped:   # the reset pulse's decay from the main bus the set pulse's decay and draw left
+        stretch = _decay_stretch(drive, supply, coil_temp, r_factor, l_factor, set_time, ts, ons, buses, tz_s, gap,
+                                 seating=None if gap_s is None else (ts, is_, ons, buses))
+        main_r = float(_clamped_main_column(np.array([gap + reset_time]), supply, drive.supply, [stretch])[0])
+    tr, ir, onr, busr, tz_r, rel_r, _ = pulse(reset_drive, supply, coil_temp, r_factor, l_factor, reset_time,
+                                            points, main_v=main_r)
     idle_t = np.array([0.5 * (tz_s + gap)]) if gap > tz_s else np.empty(0)
     time = np.concatenate([ts, idle_t, gap + tr])
     n_s, n_i = ts.size, idle_t.size
@@ -372,17 +446,25 @@ def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: 
     if drive.supply.boosted:
         cols["boost_v"] = boost_column(drive, reset_drive, supply, coil_temp, r_factor, l_factor, time,
                                        set_time, reset_time, gap,
-                                       None if gap_s is None else (ts, is_, ons, buses))
-    if drive.supply.boosted and drive.supply.droops:
+                                       None if gap_s is None else (ts, is_, ons, buses),
+                                       (tz_s - set_time, tz_r - reset_time) if clamped else (0.0, 0.0))
+    if clamped:   # each decay draws on the main bus, the converter's run after it
+        main = _clamped_main_column(time, supply, drive.supply, [
+            stretch, _decay_stretch(reset_drive, supply, coil_temp, r_factor, l_factor, reset_time, gap + tr, onr, busr,
+                                    gap + tz_r, np.inf, start=gap)])
+    elif drive.supply.boosted and drive.supply.droops:
         main = _main_bus_column(drive, reset_drive, supply, coil_temp, r_factor, l_factor, time, set_time,
                                 reset_time, gap, None if gap_s is None else (ts, is_, ons, buses))
+    if drive.supply.boosted and drive.supply.droops:
         if full_bridge(drive):   # between the pulses, all five off: the rail (Q1's, Q3's drain) on the main bus
             idle = np.concatenate([np.zeros(n_s), np.ones(n_i), np.zeros(tr.size)])
             cols["q1_v"] = cols["q1_v"] + idle * (main - supply)
             cols["q3_v"] = cols["q3_v"] + idle * (main - supply)
-        else:   # each switch off, its node follows the top, which the main bus holds
-            off_s = np.concatenate([1.0 - ons, np.ones(n_i + tr.size)])
-            off_r = np.concatenate([np.ones(n_s + n_i), 1.0 - onr])
+        else:   # each switch off, its node follows the top, which the main bus holds (a clamp
+            # holds it in the decay, drawn on the main bus already)
+            held_s, held_r = (ons == 0) & clamped, (onr == 0) & clamped
+            off_s = np.concatenate([1.0 - ons - held_s, np.ones(n_i + tr.size)])
+            off_r = np.concatenate([np.ones(n_s + n_i), 1.0 - onr - held_r])
             cols["switch_voltage_v"] = cols["switch_voltage_v"] + off_s * (main - supply)
             cols["reset_switch_voltage_v"] = cols["reset_switch_voltage_v"] + off_r * (main - supply)
         cols["main_bus_v"] = main
