@@ -1482,14 +1482,12 @@ def _boosted_curves_refusal(coil: Coil, switch: Switch, freewheel: Freewheel, su
                             duty) -> tuple[str, str] | None:
     """``(key, why)`` where a moving armature over its open and seated flux-linkage curves
     is not modelled with the boosted peak, else ``None``: it is
-    (:func:`coildrive.model.armature_runs.pull_in` with a trip, the boost capacitor a state;
-    :func:`coildrive.model.armature_boost.curve_window` the conversion after the threshold)
-    from a boost capacitor on one low- or high-side switch with a diode, Zener or resistor
+    (:func:`coildrive.model.armature_runs.pull_in` with a trip, the boost capacitor a state
+    or an ideal boost a stiff source; :func:`coildrive.model.armature_boost.curve_window` the
+    conversion after the threshold) from a boost capacitor or an ideal boost on one low- or high-side switch with a diode, Zener or resistor
     freewheel (no split decay), a stiff main supply, a voltage-mode fixed or supply-table
     hold, no eddy term and no on/off cycle."""
     what = "a moving armature over its open and seated flux-linkage curves"
-    if not supply.boost_capacitance > 0:
-        return "supply.boost_capacitance", f"{what} from an ideal boost (a boost capacitor only: give its capacitance)"
     if coil.eddy_resistance:
         return "coil.eddy_resistance", f"{what} and an eddy-current term"
     if supply.droops:
@@ -1597,7 +1595,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "main supply (or a drooping one; on a full bridge a linear coil or a curve, an eddy "
                          "term on a linear coil, or on a curve on a supply that sinks; with [armature] a "
                          "linear coil, an eddy term too (or its open and seated flux-linkage curves from a "
-                         "boost capacitor on one switch, a stiff main supply, a voltage-mode fixed or "
+                         "boost capacitor or an ideal boost on one switch, a stiff main supply, a voltage-mode fixed or "
                          "supply-table hold), a clamp without split decay, on a full bridge a "
                          "slow-decay hold), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; a "

@@ -153,17 +153,25 @@ def _point(**over):
     return p, g
 
 
-@pytest.mark.parametrize("trip,where", [(0.3, "stop"), (2.0, "hold"), (3.2, "peak")])
-def test_boosted_run_over_the_curves_matches_scipy(solved, trip, where):
+@pytest.mark.parametrize("c_b,trip,where", [(C_B, 0.3, "stop"), (C_B, 2.0, "hold"), (C_B, 3.2, "peak"),
+                                             (0.0, 0.3, "stop"), (0.0, 2.0, "hold"), (0.0, 3.6, "peak")],
+                         ids=["capacitor-stop", "capacitor-hold", "capacitor-peak", "ideal-stop", "ideal-hold",
+                              "ideal-peak"])
+def test_boosted_run_over_the_curves_matches_scipy(solved, c_b, trip, where):
     """The threshold's moment and state (on the open stop before the motion; in flight;
     on the seat after the armature seated in the peak) and the seat (in the hold after
-    it) against solve_ivp of the equations written afresh (DOP853): within 1e-5."""
+    it) against solve_ivp of the equations written afresh (DOP853): within 1e-5. From the
+    boost capacitor and from an ideal boost (``c_b`` 0: a stiff source at ``V_b``, the
+    reference's ``C_b`` infinite, the run without the capacitor's state)."""
     p, g = _point()
-    pb = boost_params(p, V_B, C_B, R_B)
+    pb = boost_params(p, V_B, c_b, R_B)
     pin = boosted_pull_in(pb, p, trip, DUTY, PERIOD, 0.05, rtol=1e-9)
-    ref = reference(solved, g, trip, 0.05)
+    ref = reference(solved, g, trip, 0.05, boost=(V_B, c_b or math.inf, R_B))
     assert pin.trip_time[0] == pytest.approx(ref["trip"], rel=1e-5)        # scipy solve_ivp
-    assert pin.trip_state[5, 0] == pytest.approx(ref["u"], rel=1e-6)       # scipy solve_ivp
+    if c_b:
+        assert pin.trip_state[5, 0] == pytest.approx(ref["u"], rel=1e-6)   # scipy solve_ivp
+    else:
+        assert pin.trip_state.shape[0] == 5 and ref["u"] == V_B
     assert pin.trip_state[0, 0] == pytest.approx(ref["psi"], rel=1e-5)
     assert pin.trip_state[1, 0] == pytest.approx(ref["x"], rel=1e-5, abs=1e-12)
     assert pin.trip_state[2, 0] == pytest.approx(ref["v"], rel=1e-5, abs=1e-9)
@@ -179,22 +187,25 @@ def test_boosted_run_over_the_curves_matches_scipy(solved, trip, where):
         assert ref["seat"] < ref["trip"] and pin.seat_time[0] < pin.trip_time[0]
 
 
-def test_first_law_at_the_threshold_over_the_curves(solved):
-    """Damping 0, the threshold in flight: what the boost capacitor gave is the copper's,
-    the field's (the curves' blend), the kinetic energy and the spring's and load's work
-    (first law; the field's energy from scipy's PCHIP antiderivative)."""
+@pytest.mark.parametrize("c_b", [C_B, 0.0], ids=["capacitor", "ideal"])
+def test_first_law_at_the_threshold_over_the_curves(solved, c_b):
+    """Damping 0, the threshold in flight: what the boost gave (the capacitor's ``C_b (V_b^2
+    - u^2) / 2``; an ideal boost's ``V_b int i dt``) is the copper's, the field's (the
+    curves' blend), the kinetic energy and the spring's and load's work (first law; the
+    field's energy from scipy's PCHIP antiderivative)."""
     p, g = _point(damping=0.0)
-    pb = boost_params(p, V_B, C_B, R_B)
+    pb = boost_params(p, V_B, c_b, R_B)
     pin = pull_in(pb, trip=2.0, rtol=1e-10)
     assert pin.status[0] == TRIPPED
-    lam, x, v, _, sq, u = pin.trip_state[:, 0]
+    lam, x, v, q, sq = pin.trip_state[:5, 0]
+    given = 0.5 * C_B * (V_B**2 - pin.trip_state[5, 0]**2) if c_b else V_B * q
     travel = STROKE - x
     s = x / STROKE
     field = (1 - s) * solved.energy("c", lam) + s * solved.energy("o", lam)
     work = g["preload"] * travel + 0.5 * g["rate"] * travel**2 + g["load"] * travel
     taken = (g["r_on"] + R_B) * sq + field + 0.5 * g["mass"] * v**2 + work
     assert travel > 0
-    assert taken == pytest.approx(0.5 * C_B * (V_B**2 - u**2), rel=1e-7)  # first law
+    assert taken == pytest.approx(given, rel=1e-7)                         # first law
 
 
 # --------------------------------------------------------------------------- drive files
@@ -265,24 +276,38 @@ def test_straight_curves_design_as_the_linear_boosted_armature(tmp_path):
         [(c["name"], c["ok"]) for c in a["checks"] if c["name"].startswith(("armature", "boost"))]
 
 
-@pytest.fixture(scope="module")
-def saturating(tmp_path_factory):
-    """``(drive file, design --json)`` of the saturating plunger (a real subprocess)."""
-    path = boost_curve_drive(tmp_path_factory.mktemp("sat"))
+def _designed(path) -> tuple:
     r = run_cli("design", str(path), "--json", cwd=EXAMPLES)
     assert r.returncode == 0, r.stderr
     return path, json.loads(r.stdout)
 
 
-def test_the_saturating_design_s_latest_seat_against_scipy(saturating):
+@pytest.fixture(scope="module")
+def saturating(tmp_path_factory):
+    """``(drive file, design --json)`` of the saturating plunger (a real subprocess)."""
+    return _designed(boost_curve_drive(tmp_path_factory.mktemp("sat")))
+
+
+@pytest.fixture(scope="module")
+def ideal(tmp_path_factory):
+    """The same from an ideal boost (no ``boost_capacitance``: a stiff 48 V source)."""
+    return _designed(boost_curve_drive(tmp_path_factory.mktemp("ideal"), extra={'boost_capacitance = "100 uF"': ""}))
+
+
+BOTH = pytest.mark.parametrize("which", ["saturating", "ideal"])
+
+
+@BOTH
+def test_the_saturating_design_s_latest_seat_against_scipy(request, which):
     """The corner the design names for the latest seat (the hot coil at 9 V, L-10 %: both
-    curves' flux x 0.9) from the boost at its low end (45.6 V, 80 uF) to the threshold,
-    then the corner's hold duty at the timer's frequency: its seat against solve_ivp on
-    the equations written afresh over scipy's PCHIP of the scaled tables, within 1e-5."""
+    curves' flux x 0.9) from the boost at its low end (45.6 V; 80 uF, or an ideal boost) to
+    the threshold, then the corner's hold duty at the timer's frequency: its seat against
+    solve_ivp on the equations written afresh over scipy's PCHIP of the scaled tables,
+    within 1e-5."""
     from coildrive.config import load_drive
     from coildrive.model.circuit import loop
 
-    path, d = saturating
+    path, d = request.getfixturevalue(which)
     drive = load_drive(path)
     a = d["armature"]
     assert a["seated_corners"] == a["corners"]
@@ -296,19 +321,23 @@ def test_the_saturating_design_s_latest_seat_against_scipy(saturating):
     (io, po), (ic, pc) = valve_tables()
     f = Solved((io, 0.9 * po), (ic, 0.9 * pc), stroke=arm.stroke)
     s = drive.supply
-    boost = (s.boost * (1 - s.boost_tolerance), s.boost_capacitance * (1 - s.boost_capacitance_tolerance),
-             s.boost_resistance)
+    c_b = s.boost_capacitance * (1 - s.boost_capacitance_tolerance) or math.inf
+    boost = (s.boost * (1 - s.boost_tolerance), c_b, s.boost_resistance)
     ref = reference(f, g, d["boost"]["threshold_a"], 0.01, boost=boost, duty=corner["hold_duty"],
                     period=1 / d["hold"]["frequency_hz"])
     assert ref["trip"] < ref["seat"], "seats in the hold after the threshold there"
     assert a["seat_time_s"] == pytest.approx(ref["seat"], rel=1e-5)       # scipy solve_ivp
+    if which == "ideal":   # (nothing droops: the boost's own voltage at the end of the peak)
+        assert d["boost"]["capacitance_f"] == 0.0 and d["boost"]["lowest_boost_v"] == pytest.approx(45.6)
 
 
-def test_simulate_runs_the_boost_and_the_armature_over_the_curves(saturating, tmp_path):
+@BOTH
+def test_simulate_runs_the_boost_and_the_armature_over_the_curves(request, which, tmp_path):
     """simulate at the hot, low-supply point: the boost capacitor gives during the peak and
-    recharges, the armature seats in the hold after the threshold (the design says so
-    there), and the status line's seat is where the position column reaches 0."""
-    path, _ = saturating
+    recharges (an ideal boost stays at its voltage), the armature seats in the hold after
+    the threshold (the design says so there), and the status line's seat is where the
+    position column reaches 0."""
+    path, _ = request.getfixturevalue(which)
     out = tmp_path / "a.csv"
     r = run_cli("simulate", str(path), "--supply", "9", "--coil-temp", "110", "--hold-time", "0.002",
                 "--csv", str(out), cwd=EXAMPLES)
@@ -318,13 +347,17 @@ def test_simulate_runs_the_boost_and_the_armature_over_the_curves(saturating, tm
     seat = float(r.stderr.split("seated at ")[1].split(" ms")[0]) * 1e-3
     t, v = data["time_s"], data["boost_v"]
     during = t <= peak * (1 - 1e-3)
-    assert v[0] == 48.0 and np.all(np.diff(v[during]) <= 1e-9) and v[during][-1] < 47.5
+    if which == "ideal":
+        assert np.all(v == 48.0)
+    else:
+        assert v[0] == 48.0 and np.all(np.diff(v[during]) <= 1e-9) and v[during][-1] < 47.5
     assert v[-1] == pytest.approx(48.0) and peak < seat
     k = int(np.argmax(data["position_m"] <= 0.0))
     assert t[k] == pytest.approx(seat, rel=1e-3)
 
 
-def test_emulated_saturating_drive_passes_check_and_a_weak_coil_fails(saturating, tmp_path):
+@BOTH
+def test_emulated_saturating_drive_passes_check_and_a_weak_coil_fails(request, which, tmp_path):
     """The virtual bench device runs the boosted actuation over the curves: its capture
     passes ``check``; a coil 40 % over its resistance fails it (plumbing: the device
     shares the design's physics)."""
@@ -333,7 +366,7 @@ def test_emulated_saturating_drive_passes_check_and_a_weak_coil_fails(saturating
     from coildrive.config import load_drive
     from coildrive.design import design
 
-    emulated_passes_and_weak_coil_fails(design(load_drive(saturating[0])), tmp_path)
+    emulated_passes_and_weak_coil_fails(design(load_drive(request.getfixturevalue(which)[0])), tmp_path)
 
 
 @pytest.mark.compiler
@@ -362,12 +395,11 @@ def test_firmware_in_the_loop_over_the_curves(saturating, tmp_path):
 
 
 @pytest.mark.parametrize("extra, key", [
-    ({'boost_capacitance = "100 uF"': ""}, "supply.boost_capacitance"),
     ({'max = "16 V"': 'max = "16 V"\nsource_resistance = "0.1 ohm"\ncapacitance = "470 uF"\n'
                       'boost_efficiency = 0.85'}, "supply.source_resistance"),
     ({'frequency = "60 kHz"': 'frequency = "60 kHz"\nregulation = "closed_loop"'}, "hold.regulation"),
     ({"\n[supply]": '\neddy_resistance = "200 ohm"\n\n[supply]'}, "coil.eddy_resistance"),
-], ids=["ideal-boost", "drooping", "closed-loop", "eddy"])
+], ids=["drooping", "closed-loop", "eddy"])
 def test_what_stays_refused_is_refused_in_one_line(tmp_path, extra, key):
     """Beyond one switch, a boost capacitor, a stiff main supply and a voltage-mode fixed
     or supply-table hold, the curves with a boosted armature are refused: one line naming

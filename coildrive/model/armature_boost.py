@@ -492,7 +492,7 @@ def window_flight(p: ArmatureParams, pin: PullInBatch, dt: float, rtol: float = 
 
 def curve_window(p: ArmatureParams, pin: PullInBatch, dt: float, rtol: float = 1e-7):
     """The ``dt`` s after a :func:`~coildrive.model.armature_runs.pull_in` run's trip from
-    the boost capacitor for a coil with curves (``p.curves``, no eddy term), the boost
+    the boost (its capacitor a state, or an ideal boost) for a coil with curves (``p.curves``, no eddy term), the boost
     still on, flown exactly at every point that trips: in flight (bounces as in the
     pull-in), at rest on a stop held there (the open stop until the flux reaches the start
     current's, the seat for good unless its flux is below the stay current's). No

@@ -124,9 +124,11 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     coil's closed-form rise from the seat (``trip_time``, ``trip_state``). ``p`` is then
     the peak's source: the boost (``v_on``; ``r_on`` with the boost path; a capacitor:
     ``capacitance`` with ``source_resistance = inf``, no source behind it). A coil with
-    curves (no eddy term) takes the boost capacitor: its resting stretches to the trip are
+    curves (no eddy term): from the boost capacitor its resting stretches to the trip are
     the held flights (:func:`_held_rise` to the lower of the start's and the trip's open
-    flux, :func:`_seated_trip` on the seat to the trip's seated flux).
+    flux, :func:`_seated_trip_held` on the seat to the trip's seated flux); from an ideal
+    boost (a stiff source) they are the curve's closed-form rise
+    (:class:`~coildrive.model.flux.FluxCoil` through :func:`_rise_to`), as a linear coil's.
 
     ``eddy_loss`` (an eddy term on a drooping bus or a boost capacitor, a linear coil): the
     run carries a seventh state, the eddy resistance's loss ``R_e int (i_m - i_t)^2 dt`` J
@@ -135,8 +137,8 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     :func:`coildrive.model.supply.eddy_loss_from` of their closed form.
     """
     n = len(p)
-    if trip is not None and p.curves is not None and (p.eddy is not None or not p.droops):
-        raise ValueError("pull_in's trip on a coil with curves takes a boost capacitor and no eddy term")
+    if trip is not None and p.curves is not None and p.eddy is not None:
+        raise ValueError("pull_in's trip on a coil with curves takes no eddy term")
     droop = p.droops
     curved = droop and p.curves is not None
     if eddy_loss and (p.eddy is None or not droop or curved):
