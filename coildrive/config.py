@@ -1486,10 +1486,8 @@ def _boosted_curves_refusal(coil: Coil, switch: Switch, freewheel: Freewheel, su
     or an ideal boost a stiff source; :func:`coildrive.model.armature_boost.curve_window` the
     conversion after the threshold) from a boost capacitor or an ideal boost on one low- or high-side switch with a diode, Zener or resistor
     freewheel (no split decay), a stiff main supply, a voltage-mode fixed or supply-table
-    hold, no eddy term and no on/off cycle."""
+    hold (an eddy term too: the threshold on the terminal current) and no on/off cycle."""
     what = "a moving armature over its open and seated flux-linkage curves"
-    if coil.eddy_resistance:
-        return "coil.eddy_resistance", f"{what} and an eddy-current term"
     if supply.droops:
         return "supply.source_resistance", f"{what} on a drooping main supply (a stiff one only)"
     if switch.topology == "full_bridge":

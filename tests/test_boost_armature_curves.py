@@ -1,7 +1,8 @@
 """A boosted peak with a moving armature over its open and seated flux-linkage curves
 (``[supply] boost`` + ``[armature]`` + ``coil.flux_current/flux_linkage`` and
-``coil.seated_current/seated_linkage``): the run from the boost capacitor over the two
-curves until the threshold on the current, then the hold's flight on the main supply
+``coil.seated_current/seated_linkage``): the run from the boost capacitor (or an ideal
+boost) over the two curves until the threshold on the current (with an eddy term the
+terminal current), then the hold's flight on the main supply
 (coildrive/model/armature_runs.py ``pull_in(trip=...)``,
 coildrive/model/armature_boost.py ``boosted_pull_in``).
 
@@ -20,7 +21,11 @@ Outside references:
 
   resting on the open stop until ``F_close`` beats spring + load, the threshold and the
   seat (inelastic) as events; after the threshold the PWM hold from the main supply
-  (``V - R i`` on, ``-(R_off i + V_off)`` off) to the seat;
+  (``V - R i`` on, ``-(R_off i + V_off)`` off) to the seat; from an ideal boost ``C``
+  infinite; with an eddy resistance ``R_e`` across the magnetising branch (Kirchhoff at its
+  node) ``psi`` the branch's, the loop carrying ``i_t = (E + R_e i)/(R + R_e)`` (drive ``E``
+  through ``R``; freewheeling not below 0, where the path blocks), ``dpsi/dt = R_e (i_t -
+  i)``, the capacitor giving ``i_t`` and the threshold on it;
 * the first law at the threshold (damping 0): ``C (V_b^2 - u^2) / 2`` = copper
   ``R_b int i^2 dt`` + the field's energy + kinetic + the spring's and the load's work.
 
@@ -69,10 +74,16 @@ def solved():
 
 
 def reference(f: Fresh, g: dict, trip: float, t_end: float, hold: bool = True, boost=(V_B, C_B, R_B),
-              duty: float = DUTY, period: float = PERIOD) -> dict:
+              duty: float = DUTY, period: float = PERIOD, r_e: float | None = None) -> dict:
     """solve_ivp of the module docstring's equations over ``y = (psi, x, v, u, int i^2
     dt)``: the threshold's moment and state, the seat (in the peak or the hold). ``boost``:
-    ``(V_b, C_b, R_b)``; the hold ``duty`` of each ``period`` s; the stroke ``f.stroke``."""
+    ``(V_b, C_b, R_b)`` (``C_b`` infinite: an ideal boost); the hold ``duty`` of each
+    ``period`` s; the stroke ``f.stroke``. ``r_e``: an eddy resistance across the
+    magnetising branch (Kirchhoff at its node): ``psi`` is the branch's flux, the loop
+    (drive ``E``, resistance ``R``) carries the terminal current ``i_t = (E + R_e i) / (R +
+    R_e)`` -- freewheeling at most down to 0, where the path blocks -- the branch sees
+    ``dpsi/dt = R_e (i_t - i)``, the capacitor gives ``i_t``, the threshold and ``int i^2
+    dt`` are ``i_t``'s."""
     from scipy.integrate import solve_ivp
 
     s = f.stroke
@@ -80,16 +91,26 @@ def reference(f: Fresh, g: dict, trip: float, t_end: float, hold: bool = True, b
     r_b = g["r_on"] + r_b
     need = g["preload"] + g["load"]
 
+    def loop(mode, psi, x, u):
+        """``(dpsi/dt, the terminal current)`` in ``mode``."""
+        i = f.current(psi, x)
+        if r_e is None:
+            if mode == "boost":
+                return u - r_b * i, i
+            if mode == "on":
+                return g["v_on"] - g["r_on"] * i, i
+            return (-(g["r_off"] * i + g["v_off"]) if psi > 0 else 0.0), i
+        e, r = {"boost": (u, r_b), "on": (g["v_on"], g["r_on"]), "off": (-g["v_off"], g["r_off"])}[mode]
+        i_t = (e + r_e * i) / (r + r_e)
+        if mode == "off":
+            i_t = max(i_t, 0.0)
+        return r_e * (i_t - i), i_t
+
     def rhs(mode, free):
         def f_(_t, y):
             psi, x, v, u = y[:4]
-            i = f.current(psi, x)
-            if mode == "boost":
-                dpsi, du = u - r_b * i, -i / c_b
-            elif mode == "on":
-                dpsi, du = g["v_on"] - g["r_on"] * i, 0.0
-            else:
-                dpsi, du = (-(g["r_off"] * i + g["v_off"]) if psi > 0 else 0.0), 0.0
+            dpsi, i = loop(mode, psi, x, u)
+            du = -i / c_b if mode == "boost" else 0.0
             acc = (g["preload"] + g["rate"] * (s - x) + g["load"] - f.closing_force(psi)
                    - g["damping"] * v) / g["mass"]
             return [dpsi, v if free else 0.0, acc if free else 0.0, du, i * i]
@@ -102,7 +123,7 @@ def reference(f: Fresh, g: dict, trip: float, t_end: float, hold: bool = True, b
     start.terminal, start.direction = True, 1
 
     def at_trip(_t, y):
-        return f.current(y[0], y[1]) - trip
+        return loop("boost", *y[:2], y[3])[1] - trip
     at_trip.terminal, at_trip.direction = True, 1
 
     def seat(_t, y):
@@ -153,20 +174,33 @@ def _point(**over):
     return p, g
 
 
-@pytest.mark.parametrize("c_b,trip,where", [(C_B, 0.3, "stop"), (C_B, 2.0, "hold"), (C_B, 3.2, "peak"),
-                                             (0.0, 0.3, "stop"), (0.0, 2.0, "hold"), (0.0, 3.6, "peak")],
-                         ids=["capacitor-stop", "capacitor-hold", "capacitor-peak", "ideal-stop", "ideal-hold",
-                              "ideal-peak"])
-def test_boosted_run_over_the_curves_matches_scipy(solved, c_b, trip, where):
+#: an eddy resistance across the latch's magnetising branch (ohm, our choice: its terminal
+#: current steps to 0.3 A at switch-on from 48 V and lags the branch's by ~8 % at 3 A)
+R_E = 150.0
+
+
+@pytest.mark.parametrize("c_b,r_e,trip,where", [
+    (C_B, None, 0.3, "stop"), (C_B, None, 2.0, "hold"), (C_B, None, 3.2, "peak"),
+    (0.0, None, 0.3, "stop"), (0.0, None, 2.0, "hold"), (0.0, None, 3.6, "peak"),
+    (C_B, R_E, 0.5, "stop"), (C_B, R_E, 2.0, "hold"), (C_B, R_E, 3.2, "peak"),
+    (0.0, R_E, 0.5, "stop"), (0.0, R_E, 2.0, "hold"), (0.0, R_E, 3.6, "peak"),
+], ids=["capacitor-stop", "capacitor-hold", "capacitor-peak", "ideal-stop", "ideal-hold", "ideal-peak",
+        "eddy-capacitor-stop", "eddy-capacitor-hold", "eddy-capacitor-peak", "eddy-ideal-stop", "eddy-ideal-hold",
+        "eddy-ideal-peak"])
+def test_boosted_run_over_the_curves_matches_scipy(solved, c_b, r_e, trip, where):
     """The threshold's moment and state (on the open stop before the motion; in flight;
     on the seat after the armature seated in the peak) and the seat (in the hold after
     it) against solve_ivp of the equations written afresh (DOP853): within 1e-5. From the
     boost capacitor and from an ideal boost (``c_b`` 0: a stiff source at ``V_b``, the
-    reference's ``C_b`` infinite, the run without the capacitor's state)."""
-    p, g = _point()
+    reference's ``C_b`` infinite, the run without the capacitor's state); with an eddy
+    term (``r_e``) the threshold on the terminal current, ``int i^2 dt`` the terminal
+    current's. (The seat in the hold after a threshold on the open stop, ~30 ms of PWM
+    for the reference, is checked once: from the capacitor without an eddy term.)"""
+    p, g = _point(eddy=r_e)
     pb = boost_params(p, V_B, c_b, R_B)
     pin = boosted_pull_in(pb, p, trip, DUTY, PERIOD, 0.05, rtol=1e-9)
-    ref = reference(solved, g, trip, 0.05, boost=(V_B, c_b or math.inf, R_B))
+    hold = where != "stop" or (c_b and r_e is None)
+    ref = reference(solved, g, trip, 0.05, hold=hold, boost=(V_B, c_b or math.inf, R_B), r_e=r_e)
     assert pin.trip_time[0] == pytest.approx(ref["trip"], rel=1e-5)        # scipy solve_ivp
     if c_b:
         assert pin.trip_state[5, 0] == pytest.approx(ref["u"], rel=1e-6)   # scipy solve_ivp
@@ -177,7 +211,8 @@ def test_boosted_run_over_the_curves_matches_scipy(solved, c_b, trip, where):
     assert pin.trip_state[2, 0] == pytest.approx(ref["v"], rel=1e-5, abs=1e-9)
     assert pin.trip_state[4, 0] == pytest.approx(ref["sq"], rel=1e-5)
     assert pin.status[0] == SEATED
-    assert pin.seat_time[0] == pytest.approx(ref["seat"], rel=1e-5)        # scipy solve_ivp
+    if hold:
+        assert pin.seat_time[0] == pytest.approx(ref["seat"], rel=1e-5)    # scipy solve_ivp
     if where == "stop":
         assert "start" not in ref
         assert pin.trip_state[1, 0] == STROKE and pull_in(pb, trip=trip).status[0] == TRIPPED
@@ -243,7 +278,8 @@ def boost_curve_drive(tmp_path, tables=None, hold="0.36 A", release="0.27 A", ex
     return path
 
 
-def test_straight_curves_design_as_the_linear_boosted_armature(tmp_path):
+@pytest.mark.parametrize("eddy_term", [False, True], ids=["plain", "eddy"])
+def test_straight_curves_design_as_the_linear_boosted_armature(tmp_path, eddy_term):
     """design --json of the boosted plunger example and of the same file with straight
     curves at its two inductances (its derived hold and drop-out currents written out):
     the same threshold, pull-in, seat, window, time-out, hold and release figures to 2e-5
@@ -252,14 +288,23 @@ def test_straight_curves_design_as_the_linear_boosted_armature(tmp_path):
     the fastest corner is 1.1e-5 from its own rtol 1e-10 run, the curves' 5e-9 -- a
     threshold inside a step is stepped to again for the curves); the conversion after the threshold is flown for the curves, so their
     most current, energy and the boost left after the longest peak are the exact ones,
-    within the linear design's bounds."""
-    lin = run_cli("design", str(EXAMPLE), "--json", cwd=EXAMPLES)
+    within the linear design's bounds. With an eddy term (``eddy_term``, both files) the
+    threshold is on the terminal current, the window's highest converted to it."""
+    example = EXAMPLE
+    extra = {"\n[supply]": f'\neddy_resistance = "{R_E_VALVE}"\n\n[supply]'} if eddy_term else {}
+    if eddy_term:
+        example = tmp_path / "linear-eddy.toml"
+        example.write_text(EXAMPLE.read_text().replace("\n[supply]", extra["\n[supply]"], 1))
+    lin = run_cli("design", str(example), "--json", cwd=EXAMPLES)
     a = json.loads(lin.stdout)
     amps = np.array([0.0, 1.0, 4.0])
-    path = boost_curve_drive(tmp_path, ((amps, L_O * amps), (amps, L_C * amps)),
+    path = boost_curve_drive(tmp_path, ((amps, L_O * amps), (amps, L_C * amps)), extra=extra,
                              hold=f"{a['hold']['current_a']!r} A", release=f"{a['release']['dropout_current_a']!r} A")
     r = run_cli("design", str(path), "--json", cwd=EXAMPLES)
-    assert r.returncode == lin.returncode == 0, r.stderr
+    # (with the eddy term the linear design's end-current bound, looser than the flown one,
+    # puts its over-current code past the board's full scale: a failed check, exit 1)
+    assert (r.returncode == lin.returncode == 0 if not eddy_term else
+            {r.returncode, lin.returncode} <= {0, 1}), r.stderr
     b = json.loads(r.stdout)
     for sec, key in (("pull_in", "time_s"), ("pull_in", "peak_time_s"), ("boost", "threshold_a"),
                      ("boost", "threshold_code"), ("boost", "time_to_threshold_s"), ("boost", "fastest_time_s"),
@@ -294,7 +339,21 @@ def ideal(tmp_path_factory):
     return _designed(boost_curve_drive(tmp_path_factory.mktemp("ideal"), extra={'boost_capacitance = "100 uF"': ""}))
 
 
-BOTH = pytest.mark.parametrize("which", ["saturating", "ideal"])
+#: an eddy resistance across the plunger's magnetising branch (our choice: its terminal
+#: current steps 24 mA at switch-on from the boost; a stronger one puts the over-current
+#: trip's code past the board's full scale)
+R_E_VALVE = "2 kohm"
+
+
+@pytest.fixture(scope="module")
+def eddy(tmp_path_factory):
+    """The same from the boost capacitor with an eddy term (and a 0.37 A hold: the term's
+    lag takes the 0.36 A one under the mechanics' x1.25 margin)."""
+    return _designed(boost_curve_drive(tmp_path_factory.mktemp("eddy"), hold="0.37 A", extra={
+        "\n[supply]": f'\neddy_resistance = "{R_E_VALVE}"\n\n[supply]'}))
+
+
+BOTH = pytest.mark.parametrize("which", ["saturating", "ideal", "eddy"])
 
 
 @BOTH
@@ -303,7 +362,7 @@ def test_the_saturating_design_s_latest_seat_against_scipy(request, which):
     curves' flux x 0.9) from the boost at its low end (45.6 V; 80 uF, or an ideal boost) to
     the threshold, then the corner's hold duty at the timer's frequency: its seat against
     solve_ivp on the equations written afresh over scipy's PCHIP of the scaled tables,
-    within 1e-5."""
+    within 1e-5 (with an eddy term, its branch in the reference too)."""
     from coildrive.config import load_drive
     from coildrive.model.circuit import loop
 
@@ -324,7 +383,7 @@ def test_the_saturating_design_s_latest_seat_against_scipy(request, which):
     c_b = s.boost_capacitance * (1 - s.boost_capacitance_tolerance) or math.inf
     boost = (s.boost * (1 - s.boost_tolerance), c_b, s.boost_resistance)
     ref = reference(f, g, d["boost"]["threshold_a"], 0.01, boost=boost, duty=corner["hold_duty"],
-                    period=1 / d["hold"]["frequency_hz"])
+                    period=1 / d["hold"]["frequency_hz"], r_e=drive.coil.eddy_resistance or None)
     assert ref["trip"] < ref["seat"], "seats in the hold after the threshold there"
     assert a["seat_time_s"] == pytest.approx(ref["seat"], rel=1e-5)       # scipy solve_ivp
     if which == "ideal":   # (nothing droops: the boost's own voltage at the end of the peak)
@@ -398,8 +457,7 @@ def test_firmware_in_the_loop_over_the_curves(saturating, tmp_path):
     ({'max = "16 V"': 'max = "16 V"\nsource_resistance = "0.1 ohm"\ncapacitance = "470 uF"\n'
                       'boost_efficiency = 0.85'}, "supply.source_resistance"),
     ({'frequency = "60 kHz"': 'frequency = "60 kHz"\nregulation = "closed_loop"'}, "hold.regulation"),
-    ({"\n[supply]": '\neddy_resistance = "200 ohm"\n\n[supply]'}, "coil.eddy_resistance"),
-], ids=["drooping", "closed-loop", "eddy"])
+], ids=["drooping", "closed-loop"])
 def test_what_stays_refused_is_refused_in_one_line(tmp_path, extra, key):
     """Beyond one switch, a boost capacitor, a stiff main supply and a voltage-mode fixed
     or supply-table hold, the curves with a boosted armature are refused: one line naming
