@@ -135,7 +135,8 @@ def boosted_pull_in(p_boost: ArmatureParams, p_hold: ArmatureParams, trip, duty,
     :func:`with_orbit` completes it), for runs that need the seat alone. With a clamp across
     the switch (``p_hold.clamp``: its off-times draw from the bus, in the flight) the seated
     coil's PWM has no closed form here: the lowest bus is up to the seat whatever ``orbit``
-    says (the design bounds the rest by a floor, :func:`coildrive.design.supply.armature_clamp_bus`).
+    says (the design bounds the rest by a floor, :func:`coildrive.design.supply.armature_clamp_bus`);
+    so too over the coil's open and seated curves (``p_hold.curves``).
 
     ``control``: a hold whose duty the firmware sets period by period from a conversion
     (a closed loop), else ``None`` (``duty`` throughout). It has ``sample(duty)`` (the
@@ -183,7 +184,7 @@ def boosted_pull_in(p_boost: ArmatureParams, p_hold: ArmatureParams, trip, duty,
     if not droop:
         return dataclasses.replace(pin, **out)
     run = dataclasses.replace(pin, **out, lowest_bus=low[0], lowest_bus_time=low[1], seat_bus=seat_bus)
-    return with_orbit(p_hold, run, duty, period) if orbit and p_hold.clamp is None else run
+    return with_orbit(p_hold, run, duty, period) if orbit and p_hold.clamp is None and p_hold.curves is None else run
 
 
 def with_orbit(p_hold: ArmatureParams, run: PullInBatch, duty, period) -> PullInBatch:
