@@ -1481,18 +1481,14 @@ def _boosted_curves_refusal(coil: Coil, switch: Switch, freewheel: Freewheel, su
                             duty) -> tuple[str, str] | None:
     """``(key, why)`` where a moving armature over its open and seated flux-linkage curves
     is not modelled with the boosted peak, else ``None``: it is
-    (:func:`coildrive.model.armature_runs.pull_in` with a trip, the boost capacitor a state;
-    :func:`coildrive.model.armature_boost.curve_window` the conversion after the threshold)
-    from a boost capacitor on one low- or high-side switch with a diode, Zener or resistor
-    freewheel (no split decay), a stiff main supply, a voltage-mode fixed or supply-table
-    hold, no eddy term and no on/off cycle."""
+    (:func:`coildrive.model.armature_runs.pull_in` with a trip, the boost capacitor a state
+    or an ideal boost a stiff source; :func:`coildrive.model.armature_boost.curve_window` the
+    conversion after the threshold) from a boost capacitor or an ideal boost on one low- or
+    high-side switch with a diode, Zener or resistor freewheel (no split decay), a stiff or
+    a drooping main supply (the hold's flights on the main bus from the hand-over,
+    :func:`coildrive.design.supply.handover_bus`), a voltage-mode fixed or supply-table hold
+    (an eddy term too: the threshold on the terminal current) and no on/off cycle."""
     what = "a moving armature over its open and seated flux-linkage curves"
-    if not supply.boost_capacitance > 0:
-        return "supply.boost_capacitance", f"{what} from an ideal boost (a boost capacitor only: give its capacitance)"
-    if coil.eddy_resistance:
-        return "coil.eddy_resistance", f"{what} and an eddy-current term"
-    if supply.droops:
-        return "supply.source_resistance", f"{what} on a drooping main supply (a stiff one only)"
     if switch.topology == "full_bridge":
         return "switch.topology", f"{what} on a full bridge (one low- or high-side switch only)"
     if freewheel.type == "clamp" or freewheel.split_decay:
@@ -1593,8 +1589,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "main supply (or a drooping one; on a full bridge a linear coil or a curve, an eddy "
                          "term on a linear coil, or on a curve on a supply that sinks; with [armature] a "
                          "linear coil, an eddy term too (or its open and seated flux-linkage curves from a "
-                         "boost capacitor on one switch, a stiff main supply, a voltage-mode fixed or "
-                         "supply-table hold), a clamp without split decay, on a full bridge a "
+                         "boost capacitor or an ideal boost on one switch, a diode/zener/resistor freewheel, a "
+                         "voltage-mode fixed or supply-table hold), a clamp without split decay, on a full bridge a "
                          "slow-decay hold), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; a "
                          "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, or on a "

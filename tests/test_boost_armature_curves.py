@@ -1,7 +1,8 @@
 """A boosted peak with a moving armature over its open and seated flux-linkage curves
 (``[supply] boost`` + ``[armature]`` + ``coil.flux_current/flux_linkage`` and
-``coil.seated_current/seated_linkage``): the run from the boost capacitor over the two
-curves until the threshold on the current, then the hold's flight on the main supply
+``coil.seated_current/seated_linkage``): the run from the boost capacitor (or an ideal
+boost) over the two curves until the threshold on the current (with an eddy term the
+terminal current), then the hold's flight on the main supply
 (coildrive/model/armature_runs.py ``pull_in(trip=...)``,
 coildrive/model/armature_boost.py ``boosted_pull_in``).
 
@@ -20,7 +21,11 @@ Outside references:
 
   resting on the open stop until ``F_close`` beats spring + load, the threshold and the
   seat (inelastic) as events; after the threshold the PWM hold from the main supply
-  (``V - R i`` on, ``-(R_off i + V_off)`` off) to the seat;
+  (``V - R i`` on, ``-(R_off i + V_off)`` off) to the seat; from an ideal boost ``C``
+  infinite; with an eddy resistance ``R_e`` across the magnetising branch (Kirchhoff at its
+  node) ``psi`` the branch's, the loop carrying ``i_t = (E + R_e i)/(R + R_e)`` (drive ``E``
+  through ``R``; freewheeling not below 0, where the path blocks), ``dpsi/dt = R_e (i_t -
+  i)``, the capacitor giving ``i_t`` and the threshold on it;
 * the first law at the threshold (damping 0): ``C (V_b^2 - u^2) / 2`` = copper
   ``R_b int i^2 dt`` + the field's energy + kinetic + the spring's and the load's work.
 
@@ -29,6 +34,7 @@ The latch's curves and mechanics are invented (tests/test_armature_curves.py).
 
 from __future__ import annotations
 
+import dataclasses
 import json
 import math
 
@@ -69,10 +75,23 @@ def solved():
 
 
 def reference(f: Fresh, g: dict, trip: float, t_end: float, hold: bool = True, boost=(V_B, C_B, R_B),
-              duty: float = DUTY, period: float = PERIOD) -> dict:
+              duty: float = DUTY, period: float = PERIOD, r_e: float | None = None, bus=None,
+              peak: float | None = None) -> dict:
     """solve_ivp of the module docstring's equations over ``y = (psi, x, v, u, int i^2
     dt)``: the threshold's moment and state, the seat (in the peak or the hold). ``boost``:
-    ``(V_b, C_b, R_b)``; the hold ``duty`` of each ``period`` s; the stroke ``f.stroke``."""
+    ``(V_b, C_b, R_b)`` (``C_b`` infinite: an ideal boost); the hold ``duty`` of each
+    ``period`` s; the stroke ``f.stroke``. ``r_e``: an eddy resistance across the
+    magnetising branch (Kirchhoff at its node): ``psi`` is the branch's flux, the loop
+    (drive ``E``, resistance ``R``) carries the terminal current ``i_t = (E + R_e i) / (R +
+    R_e)`` -- freewheeling at most down to 0, where the path blocks -- the branch sees
+    ``dpsi/dt = R_e (i_t - i)``, the capacitor gives ``i_t``, the threshold and ``int i^2
+    dt`` are ``i_t``'s. ``bus``: a drooping main supply ``(R_s, C, V_src, u0)``: from the
+    hand-over the hold runs on the bus capacitor (the state ``u``, from ``u0`` V: the main
+    diode blocked through the peak), ``C du/dt = (V_src - u)/R_s - i`` switched on (the
+    coil's drive ``u``), ``(V_src - u)/R_s`` off; ``seat_bus`` (V) the bus at the seat, ``low``
+    (V) its lowest from the hand-over to the seat (at the pieces' ends and where ``du/dt``
+    turns from falling to rising, an event). ``peak``: the peak ends at that time (s) instead
+    of at the threshold."""
     from scipy.integrate import solve_ivp
 
     s = f.stroke
@@ -80,16 +99,29 @@ def reference(f: Fresh, g: dict, trip: float, t_end: float, hold: bool = True, b
     r_b = g["r_on"] + r_b
     need = g["preload"] + g["load"]
 
+    def loop(mode, psi, x, u):
+        """``(dpsi/dt, the terminal current)`` in ``mode``."""
+        i = f.current(psi, x)
+        if r_e is None:
+            if mode == "boost":
+                return u - r_b * i, i
+            if mode == "on":
+                return (g["v_on"] if bus is None else u) - g["r_on"] * i, i
+            return (-(g["r_off"] * i + g["v_off"]) if psi > 0 else 0.0), i
+        e, r = {"boost": (u, r_b), "on": (g["v_on"] if bus is None else u, g["r_on"]),
+                "off": (-g["v_off"], g["r_off"])}[mode]
+        i_t = (e + r_e * i) / (r + r_e)
+        if mode == "off":
+            i_t = max(i_t, 0.0)
+        return r_e * (i_t - i), i_t
+
     def rhs(mode, free):
         def f_(_t, y):
             psi, x, v, u = y[:4]
-            i = f.current(psi, x)
-            if mode == "boost":
-                dpsi, du = u - r_b * i, -i / c_b
-            elif mode == "on":
-                dpsi, du = g["v_on"] - g["r_on"] * i, 0.0
-            else:
-                dpsi, du = (-(g["r_off"] * i + g["v_off"]) if psi > 0 else 0.0), 0.0
+            dpsi, i = loop(mode, psi, x, u)
+            du = -i / c_b if mode == "boost" else 0.0
+            if bus is not None and mode != "boost":
+                du = ((bus[2] - u) / bus[0] - (i if mode == "on" else 0.0)) / bus[1]
             acc = (g["preload"] + g["rate"] * (s - x) + g["load"] - f.closing_force(psi)
                    - g["damping"] * v) / g["mass"]
             return [dpsi, v if free else 0.0, acc if free else 0.0, du, i * i]
@@ -102,7 +134,7 @@ def reference(f: Fresh, g: dict, trip: float, t_end: float, hold: bool = True, b
     start.terminal, start.direction = True, 1
 
     def at_trip(_t, y):
-        return f.current(y[0], y[1]) - trip
+        return loop("boost", *y[:2], y[3])[1] - trip
     at_trip.terminal, at_trip.direction = True, 1
 
     def seat(_t, y):
@@ -114,10 +146,26 @@ def reference(f: Fresh, g: dict, trip: float, t_end: float, hold: bool = True, b
     opened.terminal, opened.direction = True, 1
 
     out = {}
-    t, y, free = boost_peak(rhs, start, at_trip, seat, [0.0, s, 0.0, v_b, 0.0], t_end, opts, out)
+    if peak is not None:
+        trip = math.inf
+    t, y, free = boost_peak(rhs, start, at_trip, seat, [0.0, s, 0.0, v_b, 0.0], peak or t_end, opts, out)
     if free or "seat" in out:
         out["start"] = True
     out.update(psi=y[0], x=y[1], v=y[2], u=y[3], sq=y[4])
+    low = []
+
+    def turn(mode, free):
+        def du(t_, y_):
+            return rhs(mode, free)(t_, y_)[3]
+        du.terminal, du.direction = False, 1
+        return du
+
+    def ended(sol, t_, y_):
+        if bus is not None:   # the bus at the piece's end and where it turned
+            low.extend([y_[3]] + [float(e[3]) for e in sol.y_events[-1]])
+    if bus is not None:
+        y[3] = bus[3]
+        low.append(y[3])
     k = 0
     moving = free   # (else on the open stop until the hold's force beats spring + load)
     while hold and "seat" not in out and t < t_end:
@@ -125,23 +173,27 @@ def reference(f: Fresh, g: dict, trip: float, t_end: float, hold: bool = True, b
         for mode, until in (("on", t0 + duty * period), ("off", t0 + period)):
             while t < until and "seat" not in out:
                 if not moving:   # at rest on the open stop: until the force beats spring + load
-                    sol = solve_ivp(rhs(mode, False), (t, until), y, events=[start], **opts)
+                    sol = solve_ivp(rhs(mode, False), (t, until), y, events=[start, turn(mode, False)], **opts)
                     t, y = float(sol.t[-1]), list(sol.y[:, -1])
+                    ended(sol, t, y)
                     moving = bool(sol.t_events[0].size)
                     if not moving:
                         break
                 # (short steps: an event finder sees a brief touch of the stop only at step ends)
-                sol = solve_ivp(rhs(mode, True), (t, until), y, events=[seat, opened], max_step=period / 20,
-                                **opts)
+                sol = solve_ivp(rhs(mode, True), (t, until), y, events=[seat, opened, turn(mode, True)],
+                                max_step=period / 20, **opts)
                 t, y = float(sol.t[-1]), list(sol.y[:, -1])
+                ended(sol, t, y)
                 if sol.t_events[0].size:
-                    out["seat"] = t
+                    out["seat"], out["seat_bus"] = t, y[3]
                 elif sol.t_events[1].size:   # back on the open stop (inelastic)
                     y[1], y[2] = s, 0.0
                     moving = start(t, y) >= 0
             if "seat" in out:
                 break
         k += 1
+    if low:
+        out["low"] = min(low)
     return out
 
 
@@ -153,23 +205,45 @@ def _point(**over):
     return p, g
 
 
-@pytest.mark.parametrize("trip,where", [(0.3, "stop"), (2.0, "hold"), (3.2, "peak")])
-def test_boosted_run_over_the_curves_matches_scipy(solved, trip, where):
+#: an eddy resistance across the latch's magnetising branch (ohm, our choice: its terminal
+#: current steps to 0.3 A at switch-on from 48 V and lags the branch's by ~8 % at 3 A)
+R_E = 150.0
+
+
+@pytest.mark.parametrize("c_b,r_e,trip,where", [
+    (C_B, None, 0.3, "stop"), (C_B, None, 2.0, "hold"), (C_B, None, 3.2, "peak"),
+    (0.0, None, 0.3, "stop"), (0.0, None, 2.0, "hold"), (0.0, None, 3.6, "peak"),
+    (C_B, R_E, 0.5, "stop"), (C_B, R_E, 2.0, "hold"), (C_B, R_E, 3.2, "peak"),
+    (0.0, R_E, 0.5, "stop"), (0.0, R_E, 2.0, "hold"), (0.0, R_E, 3.6, "peak"),
+], ids=["capacitor-stop", "capacitor-hold", "capacitor-peak", "ideal-stop", "ideal-hold", "ideal-peak",
+        "eddy-capacitor-stop", "eddy-capacitor-hold", "eddy-capacitor-peak", "eddy-ideal-stop", "eddy-ideal-hold",
+        "eddy-ideal-peak"])
+def test_boosted_run_over_the_curves_matches_scipy(solved, c_b, r_e, trip, where):
     """The threshold's moment and state (on the open stop before the motion; in flight;
     on the seat after the armature seated in the peak) and the seat (in the hold after
-    it) against solve_ivp of the equations written afresh (DOP853): within 1e-5."""
-    p, g = _point()
-    pb = boost_params(p, V_B, C_B, R_B)
+    it) against solve_ivp of the equations written afresh (DOP853): within 1e-5. From the
+    boost capacitor and from an ideal boost (``c_b`` 0: a stiff source at ``V_b``, the
+    reference's ``C_b`` infinite, the run without the capacitor's state); with an eddy
+    term (``r_e``) the threshold on the terminal current, ``int i^2 dt`` the terminal
+    current's. (The seat in the hold after a threshold on the open stop, ~30 ms of PWM
+    for the reference, is checked once: from the capacitor without an eddy term.)"""
+    p, g = _point(eddy=r_e)
+    pb = boost_params(p, V_B, c_b, R_B)
     pin = boosted_pull_in(pb, p, trip, DUTY, PERIOD, 0.05, rtol=1e-9)
-    ref = reference(solved, g, trip, 0.05)
+    hold = where != "stop" or (c_b and r_e is None)
+    ref = reference(solved, g, trip, 0.05, hold=hold, boost=(V_B, c_b or math.inf, R_B), r_e=r_e)
     assert pin.trip_time[0] == pytest.approx(ref["trip"], rel=1e-5)        # scipy solve_ivp
-    assert pin.trip_state[5, 0] == pytest.approx(ref["u"], rel=1e-6)       # scipy solve_ivp
+    if c_b:
+        assert pin.trip_state[5, 0] == pytest.approx(ref["u"], rel=1e-6)   # scipy solve_ivp
+    else:
+        assert pin.trip_state.shape[0] == 5 and ref["u"] == V_B
     assert pin.trip_state[0, 0] == pytest.approx(ref["psi"], rel=1e-5)
     assert pin.trip_state[1, 0] == pytest.approx(ref["x"], rel=1e-5, abs=1e-12)
     assert pin.trip_state[2, 0] == pytest.approx(ref["v"], rel=1e-5, abs=1e-9)
     assert pin.trip_state[4, 0] == pytest.approx(ref["sq"], rel=1e-5)
     assert pin.status[0] == SEATED
-    assert pin.seat_time[0] == pytest.approx(ref["seat"], rel=1e-5)        # scipy solve_ivp
+    if hold:
+        assert pin.seat_time[0] == pytest.approx(ref["seat"], rel=1e-5)    # scipy solve_ivp
     if where == "stop":
         assert "start" not in ref
         assert pin.trip_state[1, 0] == STROKE and pull_in(pb, trip=trip).status[0] == TRIPPED
@@ -179,22 +253,52 @@ def test_boosted_run_over_the_curves_matches_scipy(solved, trip, where):
         assert ref["seat"] < ref["trip"] and pin.seat_time[0] < pin.trip_time[0]
 
 
-def test_first_law_at_the_threshold_over_the_curves(solved):
-    """Damping 0, the threshold in flight: what the boost capacitor gave is the copper's,
-    the field's (the curves' blend), the kinetic energy and the spring's and load's work
-    (first law; the field's energy from scipy's PCHIP antiderivative)."""
+@pytest.mark.parametrize("c_b", [C_B, 0.0], ids=["capacitor", "ideal"])
+def test_first_law_at_the_threshold_over_the_curves(solved, c_b):
+    """Damping 0, the threshold in flight: what the boost gave (the capacitor's ``C_b (V_b^2
+    - u^2) / 2``; an ideal boost's ``V_b int i dt``) is the copper's, the field's (the
+    curves' blend), the kinetic energy and the spring's and load's work (first law; the
+    field's energy from scipy's PCHIP antiderivative)."""
     p, g = _point(damping=0.0)
-    pb = boost_params(p, V_B, C_B, R_B)
+    pb = boost_params(p, V_B, c_b, R_B)
     pin = pull_in(pb, trip=2.0, rtol=1e-10)
     assert pin.status[0] == TRIPPED
-    lam, x, v, _, sq, u = pin.trip_state[:, 0]
+    lam, x, v, q, sq = pin.trip_state[:5, 0]
+    given = 0.5 * C_B * (V_B**2 - pin.trip_state[5, 0]**2) if c_b else V_B * q
     travel = STROKE - x
     s = x / STROKE
     field = (1 - s) * solved.energy("c", lam) + s * solved.energy("o", lam)
     work = g["preload"] * travel + 0.5 * g["rate"] * travel**2 + g["load"] * travel
     taken = (g["r_on"] + R_B) * sq + field + 0.5 * g["mass"] * v**2 + work
     assert travel > 0
-    assert taken == pytest.approx(0.5 * C_B * (V_B**2 - u**2), rel=1e-7)  # first law
+    assert taken == pytest.approx(given, rel=1e-7)                         # first law
+
+
+#: a drooping main supply behind the hold (our choice: a long thin cable, a small bulk
+#: capacitor, the source 0.2 V under the bus's start: the boost converter's draw)
+R_S, C_BUS, V_DRAW = 1.0, 20e-6, 0.2
+
+
+@pytest.mark.parametrize("r_e", [None, R_E], ids=["plain", "eddy"])
+def test_the_hold_on_a_drooping_main_bus_over_the_curves_matches_scipy(solved, r_e):
+    """The threshold in flight from the boost capacitor, then the hold on the drooping main
+    bus (its capacitor a state of the flight from the source's voltage at the hand-over):
+    the seat within 1e-5, the bus at the seat and its lowest from the hand-over to the seat
+    within 1e-5 of the droop, against solve_ivp of the equations written afresh (DOP853)."""
+    p, g = _point(eddy=r_e)
+    pb = boost_params(p, V_B, C_B, R_B)
+    v_src = g["v_on"] - V_DRAW
+    ph = dataclasses.replace(p, source_resistance=np.array([R_S]), capacitance=np.array([C_BUS]),
+                             v_on=np.array([v_src]))
+    pin = boosted_pull_in(pb, ph, 2.0, DUTY, PERIOD, 0.05, bus0=g["v_on"])   # (the design's rtol)
+    ref = reference(solved, g, 2.0, 0.05, boost=(V_B, C_B, R_B), r_e=r_e, bus=(R_S, C_BUS, v_src, g["v_on"]))
+    droop = g["v_on"] - ref["low"]
+    assert droop > 1.0 and ref["trip"] < ref["seat"] and pin.status[0] == SEATED
+    assert pin.trip_time[0] == pytest.approx(ref["trip"], rel=1e-5)                 # scipy solve_ivp
+    assert pin.seat_time[0] == pytest.approx(ref["seat"], rel=1e-5)                 # scipy solve_ivp
+    assert pin.seat_bus[0] == pytest.approx(ref["seat_bus"], abs=1e-5 * droop)      # scipy solve_ivp
+    assert pin.lowest_bus[0] == pytest.approx(ref["low"], abs=1e-5 * droop)         # scipy solve_ivp
+    assert pin.bus_settled is None   # (over the curves the lowest bus is up to the seat)
 
 
 # --------------------------------------------------------------------------- drive files
@@ -232,7 +336,8 @@ def boost_curve_drive(tmp_path, tables=None, hold="0.36 A", release="0.27 A", ex
     return path
 
 
-def test_straight_curves_design_as_the_linear_boosted_armature(tmp_path):
+@pytest.mark.parametrize("eddy_term", [False, True], ids=["plain", "eddy"])
+def test_straight_curves_design_as_the_linear_boosted_armature(tmp_path, eddy_term):
     """design --json of the boosted plunger example and of the same file with straight
     curves at its two inductances (its derived hold and drop-out currents written out):
     the same threshold, pull-in, seat, window, time-out, hold and release figures to 2e-5
@@ -241,14 +346,23 @@ def test_straight_curves_design_as_the_linear_boosted_armature(tmp_path):
     the fastest corner is 1.1e-5 from its own rtol 1e-10 run, the curves' 5e-9 -- a
     threshold inside a step is stepped to again for the curves); the conversion after the threshold is flown for the curves, so their
     most current, energy and the boost left after the longest peak are the exact ones,
-    within the linear design's bounds."""
-    lin = run_cli("design", str(EXAMPLE), "--json", cwd=EXAMPLES)
+    within the linear design's bounds. With an eddy term (``eddy_term``, both files) the
+    threshold is on the terminal current, the window's highest converted to it."""
+    example = EXAMPLE
+    extra = {"\n[supply]": f'\neddy_resistance = "{R_E_VALVE}"\n\n[supply]'} if eddy_term else {}
+    if eddy_term:
+        example = tmp_path / "linear-eddy.toml"
+        example.write_text(EXAMPLE.read_text().replace("\n[supply]", extra["\n[supply]"], 1))
+    lin = run_cli("design", str(example), "--json", cwd=EXAMPLES)
     a = json.loads(lin.stdout)
     amps = np.array([0.0, 1.0, 4.0])
-    path = boost_curve_drive(tmp_path, ((amps, L_O * amps), (amps, L_C * amps)),
+    path = boost_curve_drive(tmp_path, ((amps, L_O * amps), (amps, L_C * amps)), extra=extra,
                              hold=f"{a['hold']['current_a']!r} A", release=f"{a['release']['dropout_current_a']!r} A")
     r = run_cli("design", str(path), "--json", cwd=EXAMPLES)
-    assert r.returncode == lin.returncode == 0, r.stderr
+    # (with the eddy term the linear design's end-current bound, looser than the flown one,
+    # puts its over-current code past the board's full scale: a failed check, exit 1)
+    assert (r.returncode == lin.returncode == 0 if not eddy_term else
+            {r.returncode, lin.returncode} <= {0, 1}), r.stderr
     b = json.loads(r.stdout)
     for sec, key in (("pull_in", "time_s"), ("pull_in", "peak_time_s"), ("boost", "threshold_a"),
                      ("boost", "threshold_code"), ("boost", "time_to_threshold_s"), ("boost", "fastest_time_s"),
@@ -265,24 +379,63 @@ def test_straight_curves_design_as_the_linear_boosted_armature(tmp_path):
         [(c["name"], c["ok"]) for c in a["checks"] if c["name"].startswith(("armature", "boost"))]
 
 
-@pytest.fixture(scope="module")
-def saturating(tmp_path_factory):
-    """``(drive file, design --json)`` of the saturating plunger (a real subprocess)."""
-    path = boost_curve_drive(tmp_path_factory.mktemp("sat"))
+def _designed(path, codes=(0,)) -> tuple:
     r = run_cli("design", str(path), "--json", cwd=EXAMPLES)
-    assert r.returncode == 0, r.stderr
+    assert r.returncode in codes, r.stderr
     return path, json.loads(r.stdout)
 
 
-def test_the_saturating_design_s_latest_seat_against_scipy(saturating):
+@pytest.fixture(scope="module")
+def saturating(tmp_path_factory):
+    """``(drive file, design --json)`` of the saturating plunger (a real subprocess)."""
+    return _designed(boost_curve_drive(tmp_path_factory.mktemp("sat")))
+
+
+@pytest.fixture(scope="module")
+def ideal(tmp_path_factory):
+    """The same from an ideal boost (no ``boost_capacitance``: a stiff 48 V source)."""
+    return _designed(boost_curve_drive(tmp_path_factory.mktemp("ideal"), extra={'boost_capacitance = "100 uF"': ""}))
+
+
+#: an eddy resistance across the plunger's magnetising branch (our choice: its terminal
+#: current steps 24 mA at switch-on from the boost; a stronger one puts the over-current
+#: trip's code past the board's full scale)
+R_E_VALVE = "2 kohm"
+
+
+@pytest.fixture(scope="module")
+def eddy(tmp_path_factory):
+    """The same from the boost capacitor with an eddy term (and a 0.37 A hold: the term's
+    lag takes the 0.36 A one under the mechanics' x1.25 margin)."""
+    return _designed(boost_curve_drive(tmp_path_factory.mktemp("eddy"), hold="0.37 A", extra={
+        "\n[supply]": f'\neddy_resistance = "{R_E_VALVE}"\n\n[supply]'}))
+
+
+@pytest.fixture(scope="module")
+def drooping(tmp_path_factory):
+    """The saturating plunger on a drooping main supply (our choice: a 0.4 ohm cable, 470 uF
+    bulk, the converter at 85 %); its supply check fails at the corners where the bus sags
+    under the firmware's supply-min code (exit 1), as the linear one's
+    (tests/test_boost_armature_droop.py)."""
+    return _designed(boost_curve_drive(tmp_path_factory.mktemp("droop"), extra={
+        'max = "16 V"': 'max = "16 V"\nsource_resistance = "0.4 ohm"\ncapacitance = "470 uF"\n'
+                        'boost_efficiency = 0.85'}), codes=(0, 1))
+
+
+BOTH = pytest.mark.parametrize("which", ["saturating", "ideal", "eddy"])
+
+
+@BOTH
+def test_the_saturating_design_s_latest_seat_against_scipy(request, which):
     """The corner the design names for the latest seat (the hot coil at 9 V, L-10 %: both
-    curves' flux x 0.9) from the boost at its low end (45.6 V, 80 uF) to the threshold,
-    then the corner's hold duty at the timer's frequency: its seat against solve_ivp on
-    the equations written afresh over scipy's PCHIP of the scaled tables, within 1e-5."""
+    curves' flux x 0.9) from the boost at its low end (45.6 V; 80 uF, or an ideal boost) to
+    the threshold, then the corner's hold duty at the timer's frequency: its seat against
+    solve_ivp on the equations written afresh over scipy's PCHIP of the scaled tables,
+    within 1e-5 (with an eddy term, its branch in the reference too)."""
     from coildrive.config import load_drive
     from coildrive.model.circuit import loop
 
-    path, d = saturating
+    path, d = request.getfixturevalue(which)
     drive = load_drive(path)
     a = d["armature"]
     assert a["seated_corners"] == a["corners"]
@@ -296,19 +449,23 @@ def test_the_saturating_design_s_latest_seat_against_scipy(saturating):
     (io, po), (ic, pc) = valve_tables()
     f = Solved((io, 0.9 * po), (ic, 0.9 * pc), stroke=arm.stroke)
     s = drive.supply
-    boost = (s.boost * (1 - s.boost_tolerance), s.boost_capacitance * (1 - s.boost_capacitance_tolerance),
-             s.boost_resistance)
+    c_b = s.boost_capacitance * (1 - s.boost_capacitance_tolerance) or math.inf
+    boost = (s.boost * (1 - s.boost_tolerance), c_b, s.boost_resistance)
     ref = reference(f, g, d["boost"]["threshold_a"], 0.01, boost=boost, duty=corner["hold_duty"],
-                    period=1 / d["hold"]["frequency_hz"])
+                    period=1 / d["hold"]["frequency_hz"], r_e=drive.coil.eddy_resistance or None)
     assert ref["trip"] < ref["seat"], "seats in the hold after the threshold there"
     assert a["seat_time_s"] == pytest.approx(ref["seat"], rel=1e-5)       # scipy solve_ivp
+    if which == "ideal":   # (nothing droops: the boost's own voltage at the end of the peak)
+        assert d["boost"]["capacitance_f"] == 0.0 and d["boost"]["lowest_boost_v"] == pytest.approx(45.6)
 
 
-def test_simulate_runs_the_boost_and_the_armature_over_the_curves(saturating, tmp_path):
+@BOTH
+def test_simulate_runs_the_boost_and_the_armature_over_the_curves(request, which, tmp_path):
     """simulate at the hot, low-supply point: the boost capacitor gives during the peak and
-    recharges, the armature seats in the hold after the threshold (the design says so
-    there), and the status line's seat is where the position column reaches 0."""
-    path, _ = saturating
+    recharges (an ideal boost stays at its voltage), the armature seats in the hold after
+    the threshold (the design says so there), and the status line's seat is where the
+    position column reaches 0."""
+    path, _ = request.getfixturevalue(which)
     out = tmp_path / "a.csv"
     r = run_cli("simulate", str(path), "--supply", "9", "--coil-temp", "110", "--hold-time", "0.002",
                 "--csv", str(out), cwd=EXAMPLES)
@@ -318,13 +475,56 @@ def test_simulate_runs_the_boost_and_the_armature_over_the_curves(saturating, tm
     seat = float(r.stderr.split("seated at ")[1].split(" ms")[0]) * 1e-3
     t, v = data["time_s"], data["boost_v"]
     during = t <= peak * (1 - 1e-3)
-    assert v[0] == 48.0 and np.all(np.diff(v[during]) <= 1e-9) and v[during][-1] < 47.5
+    if which == "ideal":
+        assert np.all(v == 48.0)
+    else:
+        assert v[0] == 48.0 and np.all(np.diff(v[during]) <= 1e-9) and v[during][-1] < 47.5
     assert v[-1] == pytest.approx(48.0) and peak < seat
     k = int(np.argmax(data["position_m"] <= 0.0))
     assert t[k] == pytest.approx(seat, rel=1e-3)
 
 
-def test_emulated_saturating_drive_passes_check_and_a_weak_coil_fails(saturating, tmp_path):
+def test_design_and_simulate_on_the_drooping_main_bus_over_the_curves(drooping, solved):
+    """The saturating plunger on the drooping main supply: seated at every corner, the
+    lowest bus the armature runs' to the seat and the floor from there (named); one
+    actuation as ``simulate`` runs it (9 V, a 100 degC coil, nominal parts: the firmware's
+    peak from the nominal boost, then its hold on the bus, the converter's current out of
+    the source) against solve_ivp of the equations written afresh with the same peak, duty
+    and source: the seat within 1e-5, the bus there within 1e-5 of the droop; the design's
+    lowest bus at or below the run's (a bound over the envelope)."""
+    from test_boost_armature_droop import simulated_at_9v
+
+    from coildrive.config import load_drive
+    from coildrive.design import design
+    from coildrive.design.supply import HANDOVER_ARMATURE_CURVES
+    from coildrive.model.circuit import loop
+
+    path, d = drooping
+    a = d["armature"]
+    assert a["seated_corners"] == a["corners"]
+    assert d["supply"]["lowest_bus_method"] == HANDOVER_ARMATURE_CURVES
+    des = design(load_drive(path))
+    drive = des.drive
+    lp = loop(drive, 9.0, 100.0)
+    w, _, duty, peak, period, v_src = simulated_at_9v(des, 0.002, lp.inductance)
+    arm, s = drive.armature, drive.supply
+    g = {"v_on": 9.0, "r_on": float(lp.r_on), "r_off": float(lp.r_off), "v_off": float(lp.v_off),
+         "preload": arm.spring_preload, "rate": arm.spring_rate, "load": arm.load_force, "mass": arm.mass,
+         "damping": arm.damping}
+    ref = reference(Solved(*valve_tables(), stroke=arm.stroke), g, math.inf, 0.002, peak=peak, duty=duty,
+                    period=period, boost=(s.boost, s.boost_capacitance, s.boost_resistance),
+                    bus=(s.source_resistance, s.capacitance, v_src, 9.0))
+    assert ref["trip"] == pytest.approx(peak) and ref["seat"] > peak      # seated in the hold
+    droop = 9.0 - ref["seat_bus"]
+    k = int(np.argmax(w.time >= w.events["seat"]))
+    assert droop > 0.05
+    assert w.events["seat"] == pytest.approx(ref["seat"], rel=1e-5)             # scipy solve_ivp
+    assert w.bus_voltage[k] == pytest.approx(ref["seat_bus"], abs=1e-5 * droop)  # scipy solve_ivp
+    assert d["supply"]["lowest_bus_v"] <= float(np.min(w.bus_voltage))
+
+
+@pytest.mark.parametrize("which", ["saturating", "eddy", "drooping"])
+def test_emulated_saturating_drive_passes_check_and_a_weak_coil_fails(request, which, tmp_path):
     """The virtual bench device runs the boosted actuation over the curves: its capture
     passes ``check``; a coil 40 % over its resistance fails it (plumbing: the device
     shares the design's physics)."""
@@ -333,7 +533,7 @@ def test_emulated_saturating_drive_passes_check_and_a_weak_coil_fails(saturating
     from coildrive.config import load_drive
     from coildrive.design import design
 
-    emulated_passes_and_weak_coil_fails(design(load_drive(saturating[0])), tmp_path)
+    emulated_passes_and_weak_coil_fails(design(load_drive(request.getfixturevalue(which)[0])), tmp_path)
 
 
 @pytest.mark.compiler
@@ -362,14 +562,11 @@ def test_firmware_in_the_loop_over_the_curves(saturating, tmp_path):
 
 
 @pytest.mark.parametrize("extra, key", [
-    ({'boost_capacitance = "100 uF"': ""}, "supply.boost_capacitance"),
-    ({'max = "16 V"': 'max = "16 V"\nsource_resistance = "0.1 ohm"\ncapacitance = "470 uF"\n'
-                      'boost_efficiency = 0.85'}, "supply.source_resistance"),
+    ({'type = "diode"': 'type = "clamp"\nclamp_voltage = "36 V"'}, "freewheel.type"),
     ({'frequency = "60 kHz"': 'frequency = "60 kHz"\nregulation = "closed_loop"'}, "hold.regulation"),
-    ({"\n[supply]": '\neddy_resistance = "200 ohm"\n\n[supply]'}, "coil.eddy_resistance"),
-], ids=["ideal-boost", "drooping", "closed-loop", "eddy"])
+], ids=["clamp", "closed-loop"])
 def test_what_stays_refused_is_refused_in_one_line(tmp_path, extra, key):
-    """Beyond one switch, a boost capacitor, a stiff main supply and a voltage-mode fixed
+    """Beyond one switch with a diode, Zener or resistor freewheel and a voltage-mode fixed
     or supply-table hold, the curves with a boosted armature are refused: one line naming
     the key (exit 2), no traceback."""
     path = boost_curve_drive(tmp_path, extra=extra)

@@ -124,7 +124,8 @@ def _end(drive: Drive, pb: ArmatureParams, pin: PullInBatch, i_trip: float):
     current is the larger of the flight's highest and that rise's end.
     With the two flux-linkage curves (``pb.curves``) the conversion is flown exactly
     at every point that trips (:func:`~coildrive.model.armature_boost.curve_window`: a
-    saturating coil's rise has no such bound); the most current is its highest.
+    saturating coil's rise has no such bound); the most current is its highest, the boost
+    then the capacitor's (an ideal boost's own voltage).
     Where the trip never comes: ``inf``, ``i_trip``, the boost's full voltage, NaN."""
     dt = conversion_period(drive)
     n = len(pb)
@@ -133,7 +134,7 @@ def _end(drive: Drive, pb: ArmatureParams, pin: PullInBatch, i_trip: float):
         high, _, y = curve_window(pb, pin, dt)
         nan = np.full(n, np.nan)
         return (np.where(hit, pin.trip_time + dt, np.inf), np.where(hit, high, i_trip),
-                np.where(hit, y[5], pb.v_on), np.where(hit, boost_energy(pb, np.where(hit, y, 0.0)), nan))
+                np.where(hit, y[5], pb.v_on) if pb.droops else pb.v_on.copy(), np.where(hit, boost_energy(pb, np.where(hit, y, 0.0)), nan))
     y = np.where(hit, pin.trip_state, 0.0)
     rest, i_from, top = np.full(n, dt), np.full(n, float(i_trip)), np.zeros(n)
     flown = np.zeros(n, bool)

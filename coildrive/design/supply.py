@@ -121,6 +121,15 @@ HANDOVER_ARMATURE_CLAMP = ("the armature's runs from the hand-over on the droopi
                            "the source through R_s carries every draw (the coil at most the largest of "
                            "the hand-over current, the hold's top and its first on-time on a stiff bus "
                            "from the larger of the hand-over and the seat's current; the boost converter)")
+#: ... with a moving armature over its open and seated flux-linkage curves (the seated
+#: coil's PWM on the bus has no closed form).
+HANDOVER_ARMATURE_CURVES = ("the armature's runs from the hand-over on the drooping bus, its capacitor a "
+                            "state of the flight over the curves until the seat, the lower of the "
+                            "pull-in's and the most current's; from the seat on a floor: the source "
+                            "through R_s carries every draw (the coil at most the largest of the "
+                            "hand-over current, the hold's top and its first on-time on a stiff bus "
+                            "over the seated curve from the larger of the hand-over and the seat's "
+                            "current; the boost converter)")
 #: ... where the hold's switching is not a fixed PWM, or a clamp draws in its off-times.
 HANDOVER_FLOOR = ("a floor: the source through R_s carries every draw from the hand-over on "
                   "(the coil at most the largest of the hand-over current, its first on-time "
@@ -160,9 +169,11 @@ def armature_clamp_bus(drive: Drive, lp, runs, top, duty, period) -> tuple[np.nd
     """``(lowest main bus V, when s from switch-on)`` per point after a moving armature's
     boosted peak (its runs, :class:`~coildrive.design.boost_armature.BoostRuns`) on a
     drooping main supply under a fixed-duty PWM hold whose off-times draw from the bus
-    through a clamp across the switch: the lower of the pull-in run's and the most-current
-    run's flights from the hand-over to the seat (the bus a state of the flight, the clamp's
-    draw in it: exact), and from the seat on a floor (:func:`coildrive.model.supply.bus_floor`:
+    through a clamp across the switch, or over the coil's open and seated flux-linkage
+    curves (``lp.inductance`` the seated curve: its PWM on the bus has no closed form): the
+    lower of the pull-in run's and the most-current run's flights from the hand-over to the
+    seat (the bus a state of the flight, a clamp's draw in it: exact), and from the seat on
+    a floor (:func:`coildrive.model.supply.bus_floor`:
     the source through ``R_s`` carrying every draw, the coil at most the largest of ``top``
     A -- the hand-over current and the hold's top -- and the seated coil's first on-time on a
     stiff bus from the larger of the hand-over current and the seat's,
@@ -283,7 +294,9 @@ def handover_bus(drive: Drive, res, duty, first_duty=None) -> tuple[np.ndarray, 
     first on-time from it the open coil's, :func:`first_on_top`: the armature may be on its
     open stop or in flight then), and under a voltage-mode PWM hold the lowest bus is the runs' on the bus
     (:func:`armature_bus`: the armature in flight through
-    the hold, then seated), the floor where an orbit had not repeated."""
+    the hold, then seated), the floor where an orbit had not repeated; with a clamp across
+    the switch, or over the coil's open and seated curves, the runs' up to the seat and a
+    floor from there (:func:`armature_clamp_bus`)."""
     s = drive.supply
     lp = res.loop
     runs = None if res.armature is None else res.armature.boost
@@ -312,9 +325,9 @@ def handover_bus(drive: Drive, res, duty, first_duty=None) -> tuple[np.ndarray, 
     ind, r_e = lp.inductance, None
     if isinstance(ind, EddyCoil):
         ind, r_e = ind.magnetising, ind.resistance
-    if runs is not None and pwm and through_clamp(drive):
+    if runs is not None and pwm and (through_clamp(drive) or isinstance(ind, FluxCoil)):
         v_low, when = armature_clamp_bus(drive, lp, runs, top, duty, res.hold.period)
-        return v_low, when, i_hand, HANDOVER_ARMATURE_CLAMP
+        return v_low, when, i_hand, HANDOVER_ARMATURE_CLAMP if through_clamp(drive) else HANDOVER_ARMATURE_CURVES
     if not pwm or through_clamp(drive) or lp.mixed is not None:
         return np.minimum(floor, lp.v_on), t_hand, i_hand, HANDOVER_FLOOR
     if isinstance(ind, FluxCoil):

@@ -136,7 +136,8 @@ def boosted_pull_in(p_boost: ArmatureParams, p_hold: ArmatureParams, trip, duty,
     :func:`with_orbit` completes it), for runs that need the seat alone. With a clamp across
     the switch (``p_hold.clamp``: its off-times draw from the bus, in the flight) the seated
     coil's PWM has no closed form here: the lowest bus is up to the seat whatever ``orbit``
-    says (the design bounds the rest by a floor, :func:`coildrive.design.supply.armature_clamp_bus`).
+    says (the design bounds the rest by a floor, :func:`coildrive.design.supply.armature_clamp_bus`);
+    so too over the coil's open and seated curves (``p_hold.curves``).
 
     ``control``: a hold whose duty the firmware sets period by period from a conversion
     (a closed loop), else ``None`` (``duty`` throughout). It has ``sample(duty)`` (the
@@ -184,7 +185,7 @@ def boosted_pull_in(p_boost: ArmatureParams, p_hold: ArmatureParams, trip, duty,
     if not droop:
         return dataclasses.replace(pin, **out)
     run = dataclasses.replace(pin, **out, lowest_bus=low[0], lowest_bus_time=low[1], seat_bus=seat_bus)
-    return with_orbit(p_hold, run, duty, period) if orbit and p_hold.clamp is None else run
+    return with_orbit(p_hold, run, duty, period) if orbit and p_hold.clamp is None and p_hold.curves is None else run
 
 
 def with_orbit(p_hold: ArmatureParams, run: PullInBatch, duty, period) -> PullInBatch:
@@ -493,22 +494,29 @@ def window_flight(p: ArmatureParams, pin: PullInBatch, dt: float, rtol: float = 
 
 def curve_window(p: ArmatureParams, pin: PullInBatch, dt: float, rtol: float = 1e-7):
     """The ``dt`` s after a :func:`~coildrive.model.armature_runs.pull_in` run's trip from
-    the boost capacitor for a coil with curves (``p.curves``, no eddy term), the boost
-    still on, flown exactly at every point that trips: in flight (bounces as in the
-    pull-in), at rest on a stop held there (the open stop until the flux reaches the start
-    current's, the seat for good unless its flux is below the stay current's). No
-    closed-form rise bounds a saturating coil's current over the window (its incremental
-    inductance falls as it saturates, the seated curve's at a current may lie below the
-    open one's), so the window is integrated, not bounded.
+    the boost (its capacitor a state, or an ideal boost) for a coil with curves
+    (``p.curves``), the boost still on, flown exactly at every point that trips: in flight
+    (bounces as in the pull-in), at rest on a stop held there (the open stop until the flux
+    reaches the start current's, the seat for good unless its flux is below the stay
+    current's). No closed-form rise bounds a saturating coil's current over the window (its
+    incremental inductance falls as it saturates, the seated curve's at a current may lie
+    below the open one's), so the window is integrated, not bounded. With an eddy term
+    (``p.eddy``) the flight is the magnetising branch's behind the loop's Thevenin pair and
+    the highest is the terminal current's, what the sense sees (from the capacitor tracked
+    as it is; from an ideal boost the highest magnetising current's, converted: switched on
+    the terminal current rises with it).
 
-    Returns ``(highest A, t s, y)`` per point: the highest coil current over the window
-    (at its accepted steps and its end) and the state (rows of the run) at its end; where
-    the trip never comes the trip's (NaN) state and ``nan``."""
+    Returns ``(highest A, t s, y)`` per point: the highest coil (terminal) current over the
+    window (at its accepted steps and its end) and the state (rows of the run) at its end;
+    where the trip never comes the trip's (NaN) state and ``nan``."""
     n = len(p)
     hit = np.isfinite(pin.trip_time)
     t = np.where(hit, pin.trip_time, 0.0)
     y = np.where(hit, pin.trip_state, 0.0)
-    peak = np.stack([p.current(y[0], y[1]), t])
+    sensed = p.droops and p.eddy is not None   # (as window_flight's)
+    current = ((lambda z: p.terminal(p.current(z[0], z[1]), True, bus=z[5])) if sensed
+               else (lambda z: p.current(z[0], z[1])))
+    peak = np.stack([current(y), t])
     t_end = t + dt
     lam_start = p.flux_open(p.start_current)
     lam_stay = p.flux_closed(p.stay_current)
@@ -540,7 +548,9 @@ def curve_window(p: ArmatureParams, pin: PullInBatch, dt: float, rtol: float = 1
         held = np.where(starts, False, held | rests | stays)
         at_open = np.where(starts, False, at_open | stays)
         active &= ~(fl.end == BOUND) | starts
-    high = np.maximum(peak[0], p.current(y[0], y[1]))
+    high = np.maximum(peak[0], current(y))
+    if p.eddy is not None and not sensed:
+        high = p.terminal(high, True)
     nan = np.full(n, np.nan)
     return np.where(hit, high, nan), np.where(hit, t, nan), np.where(hit, y, np.nan)
 

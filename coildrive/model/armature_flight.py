@@ -418,9 +418,9 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
     held, flux_to : where ``held``, the armature rests at its stop (``x`` and ``v``
     frozen, no stop events): a resting stretch of a coil whose curves have no closed form
     on the drooping bus; it ends (code START) where the flux linkage rises to ``flux_to`` Wb
-    current_to : A per point (``inf``: none): a free flight ends (code TRIP) where the
-    coil's current (with an eddy term the terminal current) rises to it -- a boosted peak's
-    threshold
+    current_to : A per point (``inf``: none): a flight (free or ``held``) ends (code TRIP)
+    where the coil's current (with an eddy term the terminal current) rises to it -- a
+    boosted peak's threshold
     flux_down : Wb per point: where ``held``, the resting stretch ends (code START) where
     the flux linkage falls to it instead (the seated coil's decay to the stay current)
     returns : V per point, a full bridge's two body diodes ``2 V_d``: switched off, the
@@ -497,7 +497,7 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
             rate = rhs.current_rate if rhs.t1 is None else rhs.terminal_rate
             c_old, dc_old = rate(y, k1)
             c_new, dc_new = rate(y_new, k7)
-            trip = ok & free & (c_new >= trip_at)
+            trip = ok & (c_new >= trip_at)   # (held too: a resting stretch's threshold)
         if rhs.t1 is None:
             zero = ok & ~on & live & (y_new[0] < 0.0)
         else:   # an eddy term: the freewheel stops where the terminal current reaches zero

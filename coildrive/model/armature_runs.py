@@ -133,9 +133,13 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     coil's closed-form rise from the seat (``trip_time``, ``trip_state``). ``p`` is then
     the peak's source: the boost (``v_on``; ``r_on`` with the boost path; a capacitor:
     ``capacitance`` with ``source_resistance = inf``, no source behind it). A coil with
-    curves (no eddy term) takes the boost capacitor: its resting stretches to the trip are
-    the held flights (:func:`_held_rise` to the lower of the start's and the trip's open
-    flux, :func:`_seated_trip` on the seat to the trip's seated flux).
+    curves: from the boost capacitor its resting stretches to the trip are the held flights
+    (:func:`_held_rise` to the lower of the start's and the trip's open flux,
+    :func:`_seated_trip_held` on the seat to the trip's seated flux; with an eddy term the
+    terminal current, which depends on the capacitor too, is the held flights' event); from
+    an ideal boost (a stiff source) they are the curve's closed-form rise
+    (:class:`~coildrive.model.flux.FluxCoil` through :func:`_rise_to`; with an eddy term the
+    branch's behind the loop's Thevenin pair), as a linear coil's.
 
     ``eddy_loss`` (an eddy term on a drooping bus or a boost capacitor, a linear coil): the
     run carries a seventh state, the eddy resistance's loss ``R_e int (i_m - i_t)^2 dt`` J
@@ -144,8 +148,6 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     :func:`coildrive.model.supply.eddy_loss_from` of their closed form.
     """
     n = len(p)
-    if trip is not None and p.curves is not None and (p.eddy is not None or not p.droops):
-        raise ValueError("pull_in's trip on a coil with curves takes a boost capacitor and no eddy term")
     droop = p.droops
     curved = droop and p.curves is not None
     if eddy_loss and (p.eddy is None or not droop or curved):
@@ -169,13 +171,17 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
         lam_to = p.flux_open(p.start_current)
         if trip is not None:   # the threshold first where the open coil reaches it on the stop
             trip = np.broadcast_to(np.asarray(trip, float), (n,))
-            lam_trip = p.flux_open(trip)
-            first_trip = lam_trip < lam_to
-            lam_to = np.minimum(lam_to, lam_trip)
-        t_start, q0, s0, u_start, st, y_held = _held_rise(p, i_inf, stiff, rtol, want, query_y, low,
-                                                         low_until, lam_to)
+            if p.eddy is None:   # (the coil's current is the curve's at the flux)
+                lam_trip = p.flux_open(trip)
+                first_trip = lam_trip < lam_to
+                lam_to = np.minimum(lam_to, lam_trip)
+        t_start, q0, s0, u_start, st, y_held, code = _held_rise(
+            p, i_inf, stiff, rtol, want, query_y, low, low_until, lam_to,
+            trip if trip is not None and p.eddy is not None else None)
         steps += st
         if trip is not None:
+            if p.eddy is not None:   # (the terminal current depends on the bus too: an event)
+                first_trip = code == TRIP
             held_trip = first_trip & np.isfinite(t_start)
             trip_held = (np.where(held_trip, t_start, np.inf), np.where(held_trip, y_held, np.nan))
             t_start = np.where(first_trip, np.inf, t_start)   # (it never starts within the run)
@@ -416,7 +422,8 @@ def _seated_trip_held(p: ArmatureParams, trip, seated, seat_time, seat_y, bound,
     """:func:`_seated_trip` for a coil with curves on the boost capacitor: the seated coil
     held on the seat (the flight integrator, ``held``) from the seat's state ``seat_y``
     until its flux reaches the seated curve's at ``trip`` A (the current at the seat is
-    ``i_c(psi)``: the flux is the event), within ``bound`` s from switch-on plus the
+    ``i_c(psi)``: the flux is the event; with an eddy term the terminal current, which
+    depends on the capacitor too, is the event), within ``bound`` s from switch-on plus the
     capacitor loop's own time scale; ``inf`` where never. Returns ``(trip_time, trip_y,
     steps, the highest current over the flight A)`` (:attr:`PullInBatch.seated_top`)."""
     n = len(p)
@@ -429,9 +436,11 @@ def _seated_trip_held(p: ArmatureParams, trip, seated, seat_time, seat_y, bound,
     end = t0 + np.where(np.isfinite(bound), bound, 0.0) + BOUND_FACTOR * bus_time_scale(p)
     ones = np.ones(n, bool)
     peak = np.stack([p.current(y0[0], 0.0), t0])
-    fl = fly_mixed(p, t0, y0, end, seated, ones, ones, stiff, rtol, held=ones, flux_to=p.flux_closed(trip),
-                   track=seated.copy(), peak=peak)
-    ok = seated & (fl.end == START)
+    # the stop: the seated flux of the trip current; with an eddy term the terminal current
+    to = dict(flux_to=p.flux_closed(trip)) if p.eddy is None else dict(current_to=trip)
+    fl = fly_mixed(p, t0, y0, end, seated, ones, ones, stiff, rtol, held=ones, track=seated.copy(), peak=peak,
+                   **to)
+    ok = seated & (fl.end == (START if p.eddy is None else TRIP))
     top = np.where(seated, np.maximum(peak[0], p.current(fl.y[0], 0.0)), np.nan)
     return (np.where(ok, fl.t, trip_time), np.where(ok, fl.y, trip_y), np.where(seated, fl.steps, 0), top)
 
@@ -468,11 +477,14 @@ def _rise_to(p: ArmatureParams, open_: bool, trip, i0, u0, eddy_loss: bool = Fal
     return t, np.stack([flux, x, np.zeros(n), q, s] + extra)
 
 
-def _held_rise(p: ArmatureParams, i_inf, stiff, rtol, want, query_y, low, low_until, flux_to=None):
+def _held_rise(p: ArmatureParams, i_inf, stiff, rtol, want, query_y, low, low_until, flux_to=None,
+               current_to=None):
     """A coil with curves on a drooping bus, switched on at t = 0 with the armature held on
     the open stop (the flight integrator, ``held``) until the flux reaches the start
-    current's (or ``flux_to`` Wb): ``(t_start s (inf: never within the bound), int i dt A*s,
-    int i^2 dt A^2*s, the bus V then, steps, the state then)``; the state at ``want`` s goes into ``query_y``, the lowest
+    current's (or ``flux_to`` Wb), or (``current_to`` A, an eddy term's threshold on the
+    terminal current) the terminal current reaches it first: ``(t s (inf: neither within the
+    bound), int i dt A*s, int i^2 dt A^2*s, the bus V then, steps, the state then, the end's
+    code: START or TRIP)``; the state at ``want`` s goes into ``query_y``, the lowest
     bus into ``low``. The bound: :data:`BOUND_FACTOR` times the slower of the open coil's
     time constant (its small-signal or its secant inductance at the steady current
     ``i_inf`` A, over ``R_on + R_s``) and ``R_s C``."""
@@ -485,9 +497,10 @@ def _held_rise(p: ArmatureParams, i_inf, stiff, rtol, want, query_y, low, low_un
     ones = np.ones(n, bool)
     fl = fly_mixed(p, np.zeros(n), y0, bound, ones, ones, ones, stiff, rtol, query=want, query_y=query_y,
                    low=low, low_until=low_until, held=ones,
-                   flux_to=p.flux_open(p.start_current) if flux_to is None else flux_to)
-    t_start = np.where(fl.end == START, fl.t, np.inf)
-    return t_start, fl.y[3], fl.y[4], fl.y[5], fl.steps, fl.y
+                   flux_to=p.flux_open(p.start_current) if flux_to is None else flux_to,
+                   current_to=current_to)
+    t_start = np.where((fl.end == START) | (fl.end == TRIP), fl.t, np.inf)
+    return t_start, fl.y[3], fl.y[4], fl.y[5], fl.steps, fl.y, fl.end
 
 
 def _droop_peak_end(p: ArmatureParams, want, t_start, moves, seated, seat_time, seat_current,
