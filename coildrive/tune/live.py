@@ -243,7 +243,6 @@ class LiveTuner:
 
     def __init__(self, link, design, options: LiveOptions | None = None,
                  progress: Progress | None = None, clock: Callable[[], float] = time.monotonic):
-        self.link = link
         self.design = design
         self.drive: Drive = design.drive
         self.options = options or LiveOptions()
@@ -253,9 +252,18 @@ class LiveTuner:
         from .sweep import check_tunable
 
         check_tunable(self.drive, "live tuning steps")
+        self._open_session(link, progress, clock)
+        self.result = LiveResult(drive=self.drive, design=design, options=self.options)
+        self._frequency = float(design.hold.frequency_hz)
+        self._ripple = 0.0
+        self._bump_expected = False
+
+    def _open_session(self, link, progress: Progress | None, clock: Callable[[], float]) -> None:
+        """The link's state shared by every live procedure (this one and a latching coil's,
+        :mod:`coildrive.tune.latch_live`): queues, sample indices, the device's events."""
+        self.link = link
         self.progress = progress
         self.clock = clock
-        self.result = LiveResult(drive=self.drive, design=design, options=self.options)
         self._q = None
         self._unwrap = _Unwrap()
         self._samples: list[tuple[int, np.ndarray]] = []   # (first index, codes), arrival order
@@ -269,9 +277,6 @@ class LiveTuner:
         self._temperatures: list[int] = []
         self._last_samples_at = 0.0
         self._expected_total = 0
-        self._frequency = float(design.hold.frequency_hz)
-        self._ripple = 0.0
-        self._bump_expected = False
         self._t0 = clock()
 
     # ------------------------------------------------------------------ plumbing
@@ -389,11 +394,28 @@ class LiveTuner:
             self.result.stopped = False
             self.result.stop_detail = (f"STOP not acknowledged ({err}): switch the coil supply off by hand")
 
+    def _close(self) -> None:
+        """STOP (:meth:`_stop`), then the link's statistics and the time taken into the result."""
+        res = self.result
+        self._stop()
+        try:
+            st = self.link.stats()
+            res.link = {k: getattr(st, k) for k in ("elapsed_s", "bytes", "bytes_per_s", "frames", "samples",
+                                                      "crc_errors", "malformed", "lost_frames",
+                                                      "samples_missing", "actuations", "error")
+                        if hasattr(st, k)}
+        except Exception as err:  # noqa: BLE001 -- statistics are a courtesy after a failure
+            res.link = {"error": str(err)}
+        res.seconds = self.clock() - self._t0
+
     # ------------------------------------------------------------------ setup
-    def _setup(self) -> None:
+    def _query_info(self, over_current_a: float, open_load_a: float) -> None:
+        """QUERY_INFO and wait for the INFO; ``result.device`` and ``result.detection`` from
+        it (``options.detect``); the over-current limit ``over_current_a`` A (any sample
+        above it, or at the ADC's full scale, stops the procedure) and the open-load
+        threshold ``open_load_a`` A."""
         from ..bench.messages import Opcode
 
-        des = self.design
         res = self.result
         self._command(Opcode.QUERY_INFO)
         end = self.clock() + 2.0
@@ -415,10 +437,17 @@ class LiveTuner:
             raise LiveFailure("refused", "--detect switch: the device says it has no position switch "
                               "(INFO flag clear)")
         res.detection = ("switch" if info.has_position_switch else "signature") if detect == "auto" else detect
-        res.over_current_a = float(des.adc.over_current_a)
-        res.open_load_a = float(des.adc.open_load_a)
+        res.over_current_a = over_current_a
+        res.open_load_a = open_load_a
         self._full_code = 2**info.adc_bits - 1
         self._limit_code = zero + int(math.floor(res.over_current_a / apc))
+
+    def _setup(self) -> None:
+        from ..bench.messages import Opcode
+
+        des = self.design
+        res = self.result
+        self._query_info(float(des.adc.over_current_a), float(des.adc.open_load_a))
         # the peak: never longer than the design's
         want_us = int(math.floor(des.pull_in.peak_time_s * 1e6 + 1e-6))
         r = self._command(Opcode.SET_PEAK_TIME, want_us)
@@ -439,21 +468,17 @@ class LiveTuner:
     def _events_after(self, arrival: int, kinds) -> list[tuple[int, int, int, int]]:
         return [e for e in self._events if e[0] > arrival and e[2] in kinds]
 
-    def _actuate(self, duty: float, repeat: int, step: str) -> LiveActuation:
-        from ..bench.capture_file import Capture, CaptureEvent
-        from ..bench.messages import EventKind, Opcode
+    def _fire(self, argument: int) -> tuple[int, object]:
+        """START (``argument`` as the protocol has it); ``(mark, reply)``: the arrival number
+        from which the messages are this actuation's, and the START reply."""
+        from ..bench.messages import Opcode
 
-        des = self.design
-        res = self.result
-        r = self._command(Opcode.SET_HOLD_DUTY, int(round(min(max(duty, 0.0), 1.0) * 65535)))
-        in_force = r.value / 65535 if r.value else duty
         self._pump(0)
         if self._samples:  # keep only what may precede the next switch-on
             newest = max(f + c.size for f, c in self._samples)
             self._samples = [(f, c) for f, c in self._samples if f + c.size > newest - 4 * PRE_SAMPLES]
         mark = self._arrival
-        started = self._command(Opcode.START, int(round(res.hold_time_s * 1e6)))
-        hold_in_force = started.value * 1e-6 if started.value else res.hold_time_s
+        started = self._command(Opcode.START, argument)
         # the START reply reaches the queue just after command() returned: what came
         # before it in the stream is an older actuation's
         end = self.clock() + 0.5
@@ -462,13 +487,17 @@ class LiveTuner:
             starts = [a for a, rep in self._replies if a > mark and rep.opcode == Opcode.START and rep.status == 0]
             if starts or self.clock() > end:
                 break
-        mark = starts[-1] if starts else self._arrival
+        return (starts[-1] if starts else self._arrival), started
+
+    def _gather(self, mark: int, length: float, release: float, kinds, hold_frequency: float | None):
+        """Wait for the actuation started after arrival ``mark`` (``length`` s on, its
+        current back at zero ``release`` s after the OFF) and cut it out of the stream:
+        ``(capture, ON index, ON value)``, the capture holding the events of ``kinds``
+        (the ON at its start only)."""
+        from ..bench.capture_file import Capture, CaptureEvent
+        from ..bench.messages import EventKind
+
         fs = float(self._info.sample_rate_hz)
-        length = res.device["peak_time_s"] + res.hold_time_s
-        release = float(des.release.zero_time_s)
-        if des.armature is not None and math.isfinite(des.armature.release_open_time_s):
-            release = max(release, float(des.armature.release_open_time_s))
-        release = 1.5 * release + 0.002
         quiet_s = max(QUIET_S, 40 * 140 * 10.0 / (getattr(self.link, "baud", None) or self.drive.board.link.baud))
         samples = (length + release) * fs
         baud = getattr(self.link, "baud", None) or self.drive.board.link.baud
@@ -522,16 +551,32 @@ class LiveTuner:
         uniq = np.concatenate([[True], np.diff(index) > 0])
         index, code = index[uniq], code[uniq]
         events = [CaptureEvent(i, k, v) for a, i, k, v in self._events
-                  if lo <= i < hi and k in (EventKind.ON, EventKind.PEAK_END, EventKind.OFF, EventKind.SWITCH)
-                  and (k != EventKind.ON or i == on_index)]
+                  if lo <= i < hi and k in kinds and (k != EventKind.ON or i == on_index)]
         apc, zero = self._scaling()
         cap = Capture.from_codes(code, index=index, events=events, source="live", sample_rate_hz=fs,
                                  adc_bits=self._info.adc_bits, amps_per_code=apc, zero_code=zero,
                                  sense_position=self.drive.board.sense.position,
-                                 hold_frequency_hz=self._frequency)
+                                 **({} if hold_frequency is None else {"hold_frequency_hz": hold_frequency}))
         # drop what is done with, keep the tail (it may hold the next actuation's start)
         self._samples = [(f, c) for f, c in self._samples if f + c.size > hi]
         self._events = [e for e in self._events if e[1] >= hi or e[0] > off[0]]
+        return cap, on_index, on[3]
+
+    def _actuate(self, duty: float, repeat: int, step: str) -> LiveActuation:
+        from ..bench.messages import EventKind, Opcode
+
+        des = self.design
+        res = self.result
+        r = self._command(Opcode.SET_HOLD_DUTY, int(round(min(max(duty, 0.0), 1.0) * 65535)))
+        in_force = r.value / 65535 if r.value else duty
+        mark, started = self._fire(int(round(res.hold_time_s * 1e6)))
+        hold_in_force = started.value * 1e-6 if started.value else res.hold_time_s
+        release = float(des.release.zero_time_s)
+        if des.armature is not None and math.isfinite(des.armature.release_open_time_s):
+            release = max(release, float(des.armature.release_open_time_s))
+        cap, on_index, _ = self._gather(mark, res.device["peak_time_s"] + res.hold_time_s, 1.5 * release + 0.002,
+                                        (EventKind.ON, EventKind.PEAK_END, EventKind.OFF, EventKind.SWITCH),
+                                        self._frequency)
         j = judge_actuation(cap, hold_frequency=self._frequency, use_switch=res.detection == "switch",
                             release_bump_expected=self._bump_expected, ripple_a=self._ripple,
                             pull_in_current=self.drive.pull_in.current,
@@ -668,16 +713,7 @@ class LiveTuner:
             except KeyboardInterrupt:
                 res.failure = ("interrupted", "interrupted (Ctrl-C)")
         finally:
-            self._stop()
-            try:
-                st = self.link.stats()
-                res.link = {k: getattr(st, k) for k in ("elapsed_s", "bytes", "bytes_per_s", "frames", "samples",
-                                                          "crc_errors", "malformed", "lost_frames",
-                                                          "samples_missing", "actuations", "error")
-                            if hasattr(st, k)}
-            except Exception as err:  # noqa: BLE001 -- statistics are a courtesy after a failure
-                res.link = {"error": str(err)}
-            res.seconds = self.clock() - self._t0
+            self._close()
         if res.point is None:
             res.point = bench_point(self.drive, o.supply, o.coil_temp)
         return res
