@@ -34,8 +34,17 @@ What the sense resistor reads (``docs/bench.md``, *A latching coil on the bench*
 
 Host commands: START fires the next pulse (set and reset alternate; BUSY while one runs
 or sooner than the design's interval after the last), STOP opens the switches at once,
-QUERY_INFO; the peak-and-hold settings (peak time, hold duty and frequency) do not apply
-(UNKNOWN_OPCODE).
+QUERY_INFO; SET_PULSE_TIME sets a timed pulse's length for the pulses of its kind that
+follow (whole scheduler ticks, 1 tick up to 1 s; a pulse from the boost ends at its
+threshold: OUT_OF_RANGE), as the live tune of a latch steps it
+(:mod:`coildrive.tune.latch_live`); the peak-and-hold settings (peak time, hold duty and
+frequency) do not apply (UNKNOWN_OPCODE).
+
+A threshold switch (``threshold_switch``, a drive without ``[armature]``): the device
+reports a position switch (INFO flag) that closes (SWITCH 1) when a set pulse's current
+reaches ``pull_in.current`` and opens (SWITCH 0) when a reset pulse's current reaches
+``reset.current`` -- the currents the design sizes each pulse to reach (the magnet or the
+catch taken to latch and let go there). The device starts unlatched.
 """
 
 from __future__ import annotations
@@ -48,8 +57,8 @@ import numpy as np
 from ..config import Drive
 from ..design.latch import LatchDesign, firmware_pulse, winding_drive
 from .capture_file import CaptureEvent
-from .device import MIN_AUTO_PERIOD, DeviceOptions, OptionError, VirtualDevice, _Recording
-from .messages import EventKind, FaultCode, Opcode, ReplyStatus
+from .device import MAX_PEAK_TIME, MIN_AUTO_PERIOD, DeviceOptions, OptionError, VirtualDevice, _Recording
+from .messages import PULSE_RESET_BIT, EventKind, FaultCode, Opcode, ReplyStatus
 from .synth import first_sample_at_or_after
 
 #: ON event value of each pulse (``docs/protocol.md``, section 4.2).
@@ -97,7 +106,15 @@ class LatchDevice(VirtualDevice):
         self._boost_peak = None
         #: the FAULT events of each pulse, by its recording's number: [(s, FaultCode value)]
         self._faults: dict[int, list[tuple[float, int]]] = {}
-        self.info = self._make_info(False)
+        if options.threshold_switch and drive.armature is not None:
+            raise ValueError("a threshold switch stands in for a coil without [armature]; this "
+                             "drive's armature model seats by its own mechanics: leave it out")
+        #: SET_PULSE_TIME's lengths in force (s), by pulse
+        self._lengths: dict[str, float] = {}
+        #: the threshold switch: latched now, and before each recording (by its number)
+        self._latched = False
+        self._latched_before: dict[int, bool] = {}
+        self.info = self._make_info(options.threshold_switch)
         if options.period is not None and options.period < self.interval:
             raise OptionError("period", f"{options.period:g} s is shorter than the design's shortest safe "
                               f"interval between pulses, {self.interval:g} s ({lt.governed_by})")
@@ -110,6 +127,8 @@ class LatchDevice(VirtualDevice):
         table entry for the device's supply, a pulse from the boost's the time its current
         reaches the threshold code at the device's coil
         (:func:`coildrive.design.latch.firmware_pulse`)."""
+        if kind in self._lengths:
+            return self._lengths[kind]
         o = self.options
         return firmware_pulse(self.design, kind, self.supply, self.coil_temp, o.resistance_scale,
                               o.inductance_scale)
@@ -134,10 +153,39 @@ class LatchDevice(VirtualDevice):
     def _events(self, rec: _Recording) -> list:
         fs = self.sample_rate
         w = rec.w
-        return [CaptureEvent(first_sample_at_or_after(rec.t_on, fs), int(EventKind.ON), PULSE_CODE[w.kind]),
-                CaptureEvent(first_sample_at_or_after(rec.t_on + w.on_time, fs), int(EventKind.OFF), 0),
-                *(CaptureEvent(first_sample_at_or_after(t, fs), int(EventKind.FAULT), code)
-                  for t, code in self._faults.get(rec.number, ()))]
+        out = [CaptureEvent(first_sample_at_or_after(rec.t_on, fs), int(EventKind.ON), PULSE_CODE[w.kind]),
+               CaptureEvent(first_sample_at_or_after(rec.t_on + w.on_time, fs), int(EventKind.OFF), 0),
+               *(CaptureEvent(first_sample_at_or_after(t, fs), int(EventKind.FAULT), code)
+                 for t, code in self._faults.get(rec.number, ()))]
+        if self.options.threshold_switch:
+            change = self._switch_change(rec)
+            if change is not None:
+                out.append(CaptureEvent(first_sample_at_or_after(rec.t_on + change[0], fs), int(EventKind.SWITCH),
+                                        change[1]))
+        return out
+
+    def _switch_change(self, rec: _Recording) -> tuple[float, int] | None:
+        """The threshold switch's change in recording ``rec`` (module docstring): ``(s from
+        its start, new level)``, or ``None``; the latch's state after it is kept when ``rec``
+        is the newest recording (a STOP plans it again, cut)."""
+        w = rec.w
+        before = self._latched_before.get(rec.number, self._latched)
+        level = 1 if w.kind == "set" else 0
+        need = self.drive.pull_in.current if w.kind == "set" else self.drive.latch.reset_current
+        on = w.time <= w.on_time + 1e-15
+        reached = np.flatnonzero(on & (w.current >= need))
+        change = None
+        if reached.size and bool(before) != bool(level):
+            k = int(reached[0])
+            if k > 0:   # the crossing, linear between the waveform's points
+                t0, t1, i0, i1 = w.time[k - 1], w.time[k], w.current[k - 1], w.current[k]
+                t = float(t0 + (need - i0) * (t1 - t0) / (i1 - i0)) if i1 > i0 else float(t1)
+            else:
+                t = float(w.time[0])
+            change = (t, level)
+        if rec.number == self._count:
+            self._latched = bool(level) if change is not None else before
+        return change
 
     def _recording_span(self, hold_time: float) -> float:
         """s from the start of the longer pulse's recording to the end of its stream."""
@@ -166,6 +214,7 @@ class LatchDevice(VirtualDevice):
         length = self.pulse_time(kind)
         if self.times_out(kind):   # after its OFF, at the same sample, as the driver sends it
             self._faults[self._count + 1] = [(now + length, int(FaultCode.BOOST_TIMEOUT))]
+        self._latched_before[self._count + 1] = self._latched
         self._record(now, (kind, length))
 
     def _stop(self, now: float) -> bool:
@@ -200,7 +249,22 @@ class LatchDevice(VirtualDevice):
             return (ReplyStatus.OK if self._stop(now) else ReplyStatus.BUSY), 0
         if op == Opcode.QUERY_INFO:
             return ReplyStatus.OK, 0
+        if op == Opcode.SET_PULSE_TIME:
+            return self._set_pulse_time(int(cmd.argument))
         return ReplyStatus.UNKNOWN_OPCODE, 0
+
+    def _set_pulse_time(self, argument: int) -> tuple[int, int]:
+        """SET_PULSE_TIME (``docs/protocol.md``): the pulse (bit 31) and its length in us,
+        rounded to whole scheduler ticks; the reply's value the length in force, us."""
+        kind = "reset" if argument & PULSE_RESET_BIT else "set"
+        seconds = (argument & ~PULSE_RESET_BIT) * 1e-6
+        p = next(x for x in self.design.latch.pulses if x.name == kind)
+        now_us = int(round(self.pulse_time(kind) * 1e6))
+        ticks = int(round(seconds * self.tick_rate))
+        if p.boost is not None or ticks < 1 or seconds > MAX_PEAK_TIME:
+            return ReplyStatus.OUT_OF_RANGE, now_us
+        self._lengths[kind] = ticks / self.tick_rate
+        return ReplyStatus.OK, int(round(self._lengths[kind] * 1e6))
 
 
 __all__ = ["LatchDevice", "PulseRun", "PULSE_CODE"]

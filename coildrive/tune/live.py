@@ -104,12 +104,7 @@ class LiveOptions:
 
     def check(self) -> None:
         """Raise :class:`InputError` naming the option for a value out of range."""
-        if not 1 <= self.repeats <= 100:
-            raise InputError("--repeats", "", f"{self.repeats} is out of range, expected 1..100")
-        if self.supply is not None and not (math.isfinite(self.supply) and self.supply > 0):
-            raise InputError("--supply", "", f"{self.supply:g} V must be greater than zero")
-        if self.coil_temp is not None and not (math.isfinite(self.coil_temp) and self.coil_temp > -273.15):
-            raise InputError("--coil-temp", "", f"{self.coil_temp:g} degC is not a temperature")
+        check_bench_options(self)
         if not (math.isfinite(self.hold_time) and 0 <= self.hold_time <= 10.0):
             raise InputError("--hold-time", "", f"{self.hold_time:g} s is out of range, expected 0 "
                              "(automatic) up to 10 s")
@@ -127,8 +122,19 @@ class LiveOptions:
                              "the bench drop-out current")
         if self.detect not in DETECTIONS:
             raise InputError("--detect", "", f"{self.detect!r} is not one of {', '.join(DETECTIONS)}")
-        if not self.timeout > 0:
-            raise InputError("--timeout", "", f"{self.timeout:g} s must be greater than zero")
+
+
+def check_bench_options(o) -> None:
+    """The options every live tune shares (``repeats``, ``supply``, ``coil_temp``,
+    ``timeout``): :class:`InputError` naming the option for a value out of range."""
+    if not 1 <= o.repeats <= 100:
+        raise InputError("--repeats", "", f"{o.repeats} is out of range, expected 1..100")
+    if o.supply is not None and not (math.isfinite(o.supply) and o.supply > 0):
+        raise InputError("--supply", "", f"{o.supply:g} V must be greater than zero")
+    if o.coil_temp is not None and not (math.isfinite(o.coil_temp) and o.coil_temp > -273.15):
+        raise InputError("--coil-temp", "", f"{o.coil_temp:g} degC is not a temperature")
+    if not o.timeout > 0:
+        raise InputError("--timeout", "", f"{o.timeout:g} s must be greater than zero")
 
 
 # --------------------------------------------------------------------------- results
@@ -152,25 +158,21 @@ class LiveActuation:
 
 
 @dataclass
-class LiveResult:
-    """Everything a live tuning found (plain data; see docs/tuning.md for the JSON)."""
+class SessionResult:
+    """What every live tune records of its session: the drive, its design and the options;
+    the bench point, the device (from its INFO), how latching or drop-out is detected, the
+    over-current and open-load limits (A); how it ended (``failure``: code and message),
+    whether the STOP was acknowledged, the commands sent, the link's statistics, notes and
+    the time taken (s)."""
 
     drive: Drive
     design: object
-    options: LiveOptions
+    options: object
     point: BenchPoint | None = None
     device: dict = field(default_factory=dict)
     detection: str = ""
-    hold_time_s: float = 0.0
-    resolution_duty: float = 0.0
-    floor_duty: float = 0.0
     over_current_a: float = 0.0
     open_load_a: float = 0.0
-    actuations: list[LiveActuation] = field(default_factory=list)
-    repeats: list[RepeatResult] = field(default_factory=list)
-    model_dropout_duty: float = math.nan
-    model_dropout_current_a: float = math.nan
-    recommendation: LiveRecommendation | None = None
     failure: tuple[str, str] | None = None
     stopped: bool = False
     stop_detail: str = ""
@@ -178,6 +180,20 @@ class LiveResult:
     link: dict = field(default_factory=dict)
     notes: list[str] = field(default_factory=list)
     seconds: float = 0.0
+
+
+@dataclass
+class LiveResult(SessionResult):
+    """Everything a live tuning found (plain data; see docs/tuning.md for the JSON)."""
+
+    hold_time_s: float = 0.0
+    resolution_duty: float = 0.0
+    floor_duty: float = 0.0
+    actuations: list[LiveActuation] = field(default_factory=list)
+    repeats: list[RepeatResult] = field(default_factory=list)
+    model_dropout_duty: float = math.nan
+    model_dropout_current_a: float = math.nan
+    recommendation: LiveRecommendation | None = None
 
     @property
     def ok(self) -> bool:
@@ -661,51 +677,20 @@ class LiveTuner:
 
     def run(self) -> LiveResult:
         """Run the procedure (see the module docstring); STOP on every exit."""
+        self._bump_expected = False
+        return self._session(self._procedure)
+
+    def _session(self, procedure: Callable[[], None]):
+        """Run ``procedure`` on the link: a :class:`LiveFailure`, a link error or Ctrl-C
+        ends it into ``result.failure``; STOP (:meth:`_close`) on every exit. The result."""
         from ..bench.link import LinkError
 
-        res = self.result
-        des = self.design
-        o = self.options
+        res, o = self.result, self.options
         self._t0 = self.clock()
         self._q = self.link.subscribe()
-        self._bump_expected = False
         try:
             try:
-                self._setup()
-                self._model_at_bench()
-                d0 = float(des.hold.duty)
-                res.floor_duty = o.floor * d0
-                res.resolution_duty = max(o.resolution * d0, 1.0 / des.timer.period_ticks)
-                auto = default_hold_time(self.drive, res.point, self._frequency, [res.floor_duty, d0])
-                res.hold_time_s = o.hold_time if o.hold_time > 0 else auto
-                if res.hold_time_s < auto:
-                    res.notes.append(f"the hold ({res.hold_time_s * 1e3:.4g} ms) is shorter than the automatic "
-                                     f"{auto * 1e3:.4g} ms ({HOLD_SETTLE_TAUS:g} time constants): near the "
-                                     "threshold the armature may not lift within it, so the drop-out duty comes "
-                                     "out low" + (" (the signature needs the gap to open visibly)"
-                                                  if res.detection == "signature" else ""))
-                hf = hold_figures(self.drive, res.point, d0, self._frequency)
-                self._ripple = float(hf.ripple_a[0])
-                coarse = max(1, math.ceil((d0 - res.model_dropout_duty) / (o.coarse_step * d0))) \
-                    if math.isfinite(res.model_dropout_duty) else 3
-                bisect = max(0, math.ceil(math.log2(o.coarse_step / o.resolution)))
-                self._expected_total = 1 + o.repeats * (coarse + bisect)
-                first = self._one(d0, 0, "design duty")
-                if first.judgement.dropped:
-                    raise LiveFailure("drops_at_design", f"the armature drops out already at the design duty "
-                                      f"{first.duty:.4f} ({first.judgement.evidence}): the hold is too weak for "
-                                      "this bench -- check the coil, the supply and the mechanics before raising "
-                                      "hold.current; the device was stopped")
-                self._bump_expected = first.judgement.release_bump_a is not None
-                if (o.supply is None and self._supply_codes) or (o.coil_temp is None and self._temperatures):
-                    self._model_at_bench()  # again, with the device's events of the first actuation
-                if res.detection == "signature" and not self._bump_expected:
-                    res.notes.append("the design-duty actuation shows no release bump: drop-out is judged from "
-                                     "the hold current's rise alone")
-                for k in range(1, o.repeats + 1):
-                    res.repeats.append(self._search(k, d0))
-                top = float(res.currents().max())
-                res.recommendation = recommend(self.drive, res.point, top, o.margin)
+                procedure()
             except LiveFailure as f:
                 res.failure = (f.code, f.message)
             except LinkError as err:
@@ -717,3 +702,43 @@ class LiveTuner:
         if res.point is None:
             res.point = bench_point(self.drive, o.supply, o.coil_temp)
         return res
+
+    def _procedure(self) -> None:
+        res = self.result
+        des = self.design
+        o = self.options
+        self._setup()
+        self._model_at_bench()
+        d0 = float(des.hold.duty)
+        res.floor_duty = o.floor * d0
+        res.resolution_duty = max(o.resolution * d0, 1.0 / des.timer.period_ticks)
+        auto = default_hold_time(self.drive, res.point, self._frequency, [res.floor_duty, d0])
+        res.hold_time_s = o.hold_time if o.hold_time > 0 else auto
+        if res.hold_time_s < auto:
+            res.notes.append(f"the hold ({res.hold_time_s * 1e3:.4g} ms) is shorter than the automatic "
+                             f"{auto * 1e3:.4g} ms ({HOLD_SETTLE_TAUS:g} time constants): near the "
+                             "threshold the armature may not lift within it, so the drop-out duty comes "
+                             "out low" + (" (the signature needs the gap to open visibly)"
+                                          if res.detection == "signature" else ""))
+        hf = hold_figures(self.drive, res.point, d0, self._frequency)
+        self._ripple = float(hf.ripple_a[0])
+        coarse = max(1, math.ceil((d0 - res.model_dropout_duty) / (o.coarse_step * d0))) \
+            if math.isfinite(res.model_dropout_duty) else 3
+        bisect = max(0, math.ceil(math.log2(o.coarse_step / o.resolution)))
+        self._expected_total = 1 + o.repeats * (coarse + bisect)
+        first = self._one(d0, 0, "design duty")
+        if first.judgement.dropped:
+            raise LiveFailure("drops_at_design", f"the armature drops out already at the design duty "
+                              f"{first.duty:.4f} ({first.judgement.evidence}): the hold is too weak for "
+                              "this bench -- check the coil, the supply and the mechanics before raising "
+                              "hold.current; the device was stopped")
+        self._bump_expected = first.judgement.release_bump_a is not None
+        if (o.supply is None and self._supply_codes) or (o.coil_temp is None and self._temperatures):
+            self._model_at_bench()  # again, with the device's events of the first actuation
+        if res.detection == "signature" and not self._bump_expected:
+            res.notes.append("the design-duty actuation shows no release bump: drop-out is judged from "
+                             "the hold current's rise alone")
+        for k in range(1, o.repeats + 1):
+            res.repeats.append(self._search(k, d0))
+        top = float(res.currents().max())
+        res.recommendation = recommend(self.drive, res.point, top, o.margin)
