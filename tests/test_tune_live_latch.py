@@ -13,6 +13,19 @@ Hayt & Kemmerly, "Engineering Circuit Analysis", first-order circuits chapter; f
 memory), so the pulse reaches its current ``I`` at ``t = -(L/R) ln(1 - I R / V)``. The
 device runs whole scheduler ticks: the shortest that latches is the first tick at or past
 that time.
+
+With a moving armature (the bolt-catch latch: a linear ``L(x)``, a stiff 12 V bus) the set
+pulse's threshold comes from the armature's equations written afresh here and integrated
+by scipy's ``solve_ivp`` (RK45 at rtol 1e-10; not the project's integrators): flux linkage
+``lam = L(x) i`` with ``L(x) = L_c / (1 + beta x)``, ``beta = (L_c - L_o) / (stroke L_o)``
+through the two measured inductances (air-gap reluctance linear in the gap: common
+practice); ``dlam/dt = V - R_on i`` while on, ``-(R_off i + V_d)`` freewheeling through
+the diode and resistor until the current is zero (the diode blocks); the co-energy force
+``(i^2 / 2) dL/dx`` (Fitzgerald, Kingsley & Umans, "Electric Machinery", electromechanical
+energy conversion; from memory) against the return spring (preload + rate x travel), the
+load and viscous damping; the armature resting on the open stop until the force lifts it.
+The pulse latches when the armature reaches the seat (the catch drops behind it), during
+the pulse or in its flight after it.
 """
 
 from __future__ import annotations
@@ -20,6 +33,7 @@ from __future__ import annotations
 import json
 import math
 
+import numpy as np
 import pytest
 from typer.testing import CliRunner
 
@@ -35,6 +49,7 @@ from coildrive.tune.latch_live import search_shortest
 from test_tune_live import Emulator
 
 IRRIGATION = EXAMPLES / "latching" / "irrigation-valve-bridge-12v.toml"
+BOLT = EXAMPLES / "latching" / "bolt-catch-reset-winding-12v.toml"
 
 
 def hand_threshold(current: float, supply: float = 12.0, coil_temp: float = 20.0) -> float:
@@ -43,6 +58,76 @@ def hand_threshold(current: float, supply: float = 12.0, coil_temp: float = 20.0
     c, b = d.coil, d.board
     r = c.resistance * (1 + 0.00393 * (coil_temp - c.reference_temp)) + 2 * b.switch.on_resistance + b.sense.resistance
     return -(c.inductance / r) * math.log(1.0 - current * r / supply)
+
+
+def armature_latches(t_pulse: float, supply: float = 12.0) -> bool:
+    """The bolt-catch's set pulse of ``t_pulse`` s at 20 degC latches (module docstring)."""
+    from scipy.integrate import solve_ivp
+
+    d = load_drive(BOLT)
+    a, b = d.armature, d.board
+    r_on = d.coil.resistance + b.switch.on_resistance + b.sense.resistance   # the sense resistor inline
+    r_off = d.coil.resistance + b.sense.resistance + b.freewheel.resistance
+    l_c, stroke = a.inductance_closed, a.stroke
+    beta = (l_c - a.inductance_open) / (stroke * a.inductance_open)
+
+    def rhs(on):
+        def f(t, y):
+            lam, x, v = y
+            i = max(lam * (1 + beta * x) / l_c, 0.0)
+            dlam = supply - r_on * i if on else (-(r_off * i + b.freewheel.diode_drop) if i > 0 else 0.0)
+            force = (-0.5 * i * i * l_c * beta / (1 + beta * x) ** 2
+                     + a.spring_preload + a.spring_rate * (stroke - x) + a.load_force - a.damping * v)
+            if x >= stroke and v >= 0 and force > 0:   # resting on the open stop
+                return [dlam, 0.0, 0.0]
+            return [dlam, v, force / a.mass]
+        return f
+
+    def event(fn, direction):
+        fn.terminal, fn.direction = True, direction
+        return fn
+    seat = event(lambda t, y: y[1], -1)
+    zero = event(lambda t, y: y[0], -1)
+    back = event(lambda t, y: y[1] - stroke, 1)
+    kw = dict(rtol=1e-10, atol=1e-13, max_step=1e-4)
+    s = solve_ivp(rhs(True), (0.0, t_pulse), [0.0, stroke, 0.0], events=seat, **kw)
+    if s.status == 1:
+        return True
+    s = solve_ivp(rhs(False), (t_pulse, t_pulse + 1.0), s.y[:, -1], events=[seat, zero, back], **kw)
+    if s.t_events[1].size and not s.t_events[0].size:   # the current is out: the armature flies on
+        y = s.y[:, -1].copy()
+        y[0] = 0.0
+        s = solve_ivp(rhs(False), (s.t[-1], s.t[-1] + 1.0), y, events=[seat, back], **kw)
+    return bool(s.t_events[0].size)
+
+
+def armature_threshold() -> float:
+    """The shortest set pulse (s) that latches, by bisection on :func:`armature_latches`."""
+    lo, hi = 1e-3, 20e-3
+    for _ in range(24):
+        mid = 0.5 * (lo + hi)
+        lo, hi = (lo, mid) if armature_latches(mid) else (mid, hi)
+    return hi
+
+
+def test_a_cut_set_pulse_flies_on_and_latches_as_the_afresh_equations_say():
+    """pulse(fly=True): the shortest set pulse whose armature reaches the seat (in the pulse
+    or after it) against solve_ivp on the equations written afresh (module docstring)."""
+    from coildrive.model.latch_waveform import NotSeated, pulse
+
+    d = load_drive(BOLT)
+
+    def caught(t):
+        gap = pulse(d, 12.0, 20.0, 1.0, 1.0, t, 400, fly=True)[6]
+        return bool(np.any(gap <= 0.0))
+    lo, hi = 1e-3, 20e-3
+    for _ in range(24):
+        mid = 0.5 * (lo + hi)
+        lo, hi = (lo, mid) if caught(mid) else (mid, hi)
+    truth = armature_threshold()
+    assert hi == pytest.approx(truth, rel=1e-4), (hi, truth)   # 6.6996 ms both, 4e-6 apart when written
+    with pytest.raises(NotSeated):   # without fly the model keeps refusing a pulse cut before the seat
+        pulse(d, 12.0, 20.0, 1.0, 1.0, 0.8 * truth, 400)
 
 
 def test_search_shortest_brackets_a_threshold_to_the_tick():
@@ -140,6 +225,33 @@ def test_live_tune_of_a_latch_finds_the_hand_worked_thresholds(tmp_path):
     assert json.loads((tmp_path / "live.tune.json").read_text())["searches"] == doc["searches"]
     assert [line for line in log if line.startswith("command ")][-1] == "command STOP 0 -> OK", log[-3:]
     assert sum(1 for line in log if "SET_PULSE_TIME" in line) >= 4
+
+
+@pytest.mark.slow
+def test_live_tune_of_an_armature_latch_finds_the_afresh_seat_threshold(tmp_path):
+    """The bolt-catch's set pulse against solve_ivp on the armature written afresh, its
+    reset winding's against the RL rise by hand (module docstring)."""
+    emu = Emulator(drive=BOLT)
+    try:
+        r = run_cli("tune", str(BOLT), "--port", emu.path, "--capture", str(tmp_path / "bolt.cdcap"), "--json",
+                    "--repeats", "1", "--resolution", "0.5 %", timeout=120)
+    finally:
+        emu.stop()
+    assert r.returncode == 0, r.stderr
+    doc = json.loads(r.stdout)
+    d = load_drive(BOLT)
+    tick = 1.0 / doc["procedure"]["tick_rate_hz"]
+    (s_set,) = [s for s in doc["searches"] if s["pulse"] == "set"]
+    truth = armature_threshold()
+    assert s_set["failed_s"] < truth <= s_set["worked_s"], (s_set, truth)
+    assert s_set["worked_s"] - s_set["failed_s"] == pytest.approx(tick)
+    (s_reset,) = [s for s in doc["searches"] if s["pulse"] == "reset"]
+    rc, b = d.latch.reset_coil, d.board
+    r_on = rc.resistance + b.switch.on_resistance + b.sense.resistance
+    trip = -(rc.inductance / r_on) * math.log(1.0 - d.latch.reset_current * r_on / 12.0)   # the RL rise by hand
+    assert s_reset["failed_s"] < trip <= s_reset["worked_s"], (s_reset, trip)
+    assert s_reset["worked_s"] - s_reset["failed_s"] == pytest.approx(tick)
+    assert doc["ok"] and doc["procedure"]["detection"] == "switch"
 
 
 @pytest.mark.slow

@@ -40,11 +40,16 @@ threshold: OUT_OF_RANGE), as the live tune of a latch steps it
 (:mod:`coildrive.tune.latch_live`); the peak-and-hold settings (peak time, hold duty and
 frequency) do not apply (UNKNOWN_OPCODE).
 
-A threshold switch (``threshold_switch``, a drive without ``[armature]``): the device
-reports a position switch (INFO flag) that closes (SWITCH 1) when a set pulse's current
-reaches ``pull_in.current`` and opens (SWITCH 0) when a reset pulse's current reaches
-``reset.current`` -- the currents the design sizes each pulse to reach (the magnet or the
-catch taken to latch and let go there). The device starts unlatched.
+A position switch (INFO flag) with a moving armature, or a threshold switch
+(``threshold_switch``) on a drive without ``[armature]``: it closes (SWITCH 1) when a set
+pulse's current reaches ``pull_in.current`` -- with an armature, when the armature reaches
+the seat -- and opens (SWITCH 0) when a reset pulse's current reaches ``reset.current``
+(the catch or the magnet trips there: the current the design sizes the reset pulse to
+reach). The device starts unlatched. A set pulse at a length the host set (SET_PULSE_TIME)
+that ends before the armature rests on the seat is flown on
+(:func:`coildrive.model.latch_waveform.pulse`, ``fly``): the catch holds it if it reaches
+the seat, else it falls back open (a linear coil on a stiff bus; otherwise refused as
+before).
 """
 
 from __future__ import annotations
@@ -68,13 +73,15 @@ PULSE_CODE = {"set": 0, "reset": 1}
 @dataclass(frozen=True)
 class PulseRun:
     """One pulse from zero: ``time`` s, the winding's current ``current`` A (its magnitude),
-    ``on_time`` s the switches are on, ``events`` (``on``, ``off``, ``zero``: s)."""
+    ``on_time`` s the switches are on, ``events`` (``on``, ``off``, ``zero``: s); with a
+    moving armature the set pulse's ``gap`` (m, 0 on the seat)."""
 
     kind: str
     time: np.ndarray
     current: np.ndarray
     on_time: float
     events: dict
+    gap: np.ndarray | None = None
 
 
 class LatchDevice(VirtualDevice):
@@ -114,7 +121,7 @@ class LatchDevice(VirtualDevice):
         #: the threshold switch: latched now, and before each recording (by its number)
         self._latched = False
         self._latched_before: dict[int, bool] = {}
-        self.info = self._make_info(options.threshold_switch)
+        self.info = self._make_info(options.threshold_switch or drive.armature is not None)
         if options.period is not None and options.period < self.interval:
             raise OptionError("period", f"{options.period:g} s is shorter than the design's shortest safe "
                               f"interval between pulses, {self.interval:g} s ({lt.governed_by})")
@@ -140,9 +147,12 @@ class LatchDevice(VirtualDevice):
 
         kind, on_time = key
         o = self.options
-        t, i, _, _, t_zero, _, _ = pulse(self._drives[kind], self.supply, self.coil_temp,
-                                         o.resistance_scale, o.inductance_scale, on_time, 2000)
-        return PulseRun(kind, t, np.abs(i), on_time, {"on": 0.0, "off": on_time, "zero": t_zero})
+        # a length the host set (SET_PULSE_TIME): a set pulse too short to seat the armature
+        # is flown on (it may still reach the seat, else it falls back open)
+        t, i, _, _, t_zero, _, gap = pulse(self._drives[kind], self.supply, self.coil_temp,
+                                           o.resistance_scale, o.inductance_scale, on_time, 2000,
+                                           fly=kind in self._lengths)
+        return PulseRun(kind, t, np.abs(i), on_time, {"on": 0.0, "off": on_time, "zero": t_zero}, gap)
 
     def _sensed(self, w: PulseRun, t_rel: np.ndarray) -> np.ndarray:
         i = np.interp(t_rel, w.time, w.current)
@@ -157,7 +167,7 @@ class LatchDevice(VirtualDevice):
                CaptureEvent(first_sample_at_or_after(rec.t_on + w.on_time, fs), int(EventKind.OFF), 0),
                *(CaptureEvent(first_sample_at_or_after(t, fs), int(EventKind.FAULT), code)
                  for t, code in self._faults.get(rec.number, ()))]
-        if self.options.threshold_switch:
+        if self.info.has_position_switch:
             change = self._switch_change(rec)
             if change is not None:
                 out.append(CaptureEvent(first_sample_at_or_after(rec.t_on + change[0], fs), int(EventKind.SWITCH),
@@ -171,10 +181,17 @@ class LatchDevice(VirtualDevice):
         w = rec.w
         before = self._latched_before.get(rec.number, self._latched)
         level = 1 if w.kind == "set" else 0
+        change = None
+        if w.gap is not None and w.kind == "set":   # a moving armature latches where it reaches the seat
+            seat = np.flatnonzero(w.gap <= 0.0)
+            if seat.size and not before:
+                change = (float(w.time[seat[0]]), 1)
+            if rec.number == self._count:
+                self._latched = True if seat.size else before
+            return change
         need = self.drive.pull_in.current if w.kind == "set" else self.drive.latch.reset_current
         on = w.time <= w.on_time + 1e-15
         reached = np.flatnonzero(on & (w.current >= need))
-        change = None
         if reached.size and bool(before) != bool(level):
             k = int(reached[0])
             if k > 0:   # the crossing, linear between the waveform's points
@@ -219,10 +236,11 @@ class LatchDevice(VirtualDevice):
 
     def _stop(self, now: float) -> bool:
         """STOP at ``now``: the switches open at once (the pulse ends there). With a moving
-        armature a set pulse cut before the armature rests on the seat is not modelled (the
-        catch would not hold it, and its fall back open is no part of
-        :mod:`coildrive.model.latch_waveform`): that pulse runs on to its end instead, and
-        ``False`` says so (a STOP command then replies BUSY)."""
+        armature a set pulse of the design's length cut before the armature rests on the
+        seat is not modelled (the catch would not hold it, and its fall back open is no part
+        of :mod:`coildrive.model.latch_waveform` there): that pulse runs on to its end
+        instead, and ``False`` says so (a STOP command then replies BUSY). A pulse at a
+        length the host set (SET_PULSE_TIME) is cut and flown on (module docstring)."""
         from ..model.latch_waveform import NotSeated
 
         rec = self._rec

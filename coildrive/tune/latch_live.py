@@ -278,6 +278,7 @@ class LatchLiveTuner(LiveTuner):
         self._switch: int | None = None      # the latch as the switch last said
         self._asked = {name: None for name in PULSES}
         self._saturates = False              # the note that the pulses saturate the ADC, once
+        self._window_end = None              # one past the last sample index the last pulse was read to
 
     # ------------------------------------------------------------------ one pulse
     def _set_length(self, name: str, length: float) -> float:
@@ -311,9 +312,17 @@ class LatchLiveTuner(LiveTuner):
         longest = max(in_force, *(v[1] for v in self._asked.values() if v is not None))
         self._full_scale(longest)
         mark, _ = self._fire(0)
-        release = 1.5 * max(p.decay_time_s for p in self.design.latch.pulses) + 0.002
+        release = self._release_window()
+        late = [e for e in self._events if self._window_end is not None and e[2] == int(EventKind.SWITCH)
+                and e[1] >= self._window_end]
+        if late:   # a change the last window missed: that pulse's verdict is not known
+            raise LiveFailure("link", f"the position switch changed to {late[-1][3]} after pulse "
+                              f"{len(res.actuations)}'s recording window: its verdict is not known (a slow "
+                              "switch or armature: the device was stopped)")
         cap, on_index, on_value = self._gather(mark, longest, release, (EventKind.ON, EventKind.OFF, EventKind.SWITCH),
                                                None)
+        offs = [e.index for e in cap.events if e.kind == int(EventKind.OFF)]
+        self._window_end = (offs[0] if offs else on_index) + int(math.ceil(release * float(self._info.sample_rate_hz)))
         fired = PULSES[on_value] if on_value in (0, 1) else name
         if fired != name:
             step, length, in_force = "alignment", design_len[fired], self._asked[fired][1]
@@ -341,6 +350,16 @@ class LatchLiveTuner(LiveTuner):
             self.progress(len(res.actuations), self._expected_total,
                           f"{fired} {in_force * 1e3:.4g} ms: {'worked' if worked else 'did not'}")
         return act
+
+    def _release_window(self) -> float:
+        """s after a pulse's OFF its recording is read for: 1.5 x the longest decay to zero
+        + 2 ms, and with a moving armature twice the worst seat time and its travel back
+        open on top (the armature of a cut set pulse may reach the seat after the OFF)."""
+        lt = self.design.latch
+        out = 1.5 * max(p.decay_time_s for p in lt.pulses) + 0.002
+        if self.drive.armature is not None:
+            out += 2.0 * max(p.seat_time_s or 0.0 for p in lt.pulses) + max(p.open_time_s or 0.0 for p in lt.pulses)
+        return out
 
     def _full_scale(self, longest: float) -> None:
         """A reading at the ADC's full scale stops the device unless the model at the bench
