@@ -76,17 +76,19 @@ def print_latch_live(res, console: Console | None = None) -> None:
     if res.pulses:
         c = Table(title=f"coildrive tune --port: {res.drive.name} on {res.drive.board.name} (latching coil)")
         for col in ("pulse", "bench shortest", "model at bench", "x worst corner", "x margin", "bench ticks",
-                    "model ticks", "recommended"):
-            c.add_column(col, justify="left" if col == "pulse" else "right")
+                    "model ticks", "recommended", "by"):
+            c.add_column(col, justify="left" if col in ("pulse", "by") else "right")
         for p in res.pulses:
-            spread = f" (spread {_ms(p.bench_spread_s)})" if res.options.repeats > 1 else ""
+            spread = f" (spread {_ms(p.bench_spread_s)})" if p.bench_spread_s > 0 else ""
             c.add_row(p.pulse, _ms(p.bench_s) + spread, _ms(p.model_bench_s), f"{p.corner_factor:.4g}",
-                      f"{p.margin:g} ({p.margin_source})", str(p.bench_ticks), str(p.model_ticks),
-                      f"[bold]{p.ticks} ticks ({_ms(p.time_s)})[/bold], {escape(p.governed_by)}")
+                      f"{p.margin:g}", str(p.bench_ticks), str(p.model_ticks),
+                      f"[bold]{p.ticks} ticks[/bold] ({_ms(p.time_s)})", "bench" if p.governed_by == "bench" else "model")
         pt = res.point
         c.caption = escape(f"bench point {pt.supply_v:.4g} V ({pt.supply_from}), coil {pt.coil_temp_c:.4g} degC "
                            f"({pt.coil_temp_from}); worst corner "
-                           + "; ".join(f"{p.pulse}: {p.worst_corner}" for p in res.pulses))
+                           + "; ".join(f"{p.pulse}: {p.worst_corner}" for p in res.pulses)
+                           + "; margin from " + ", ".join(sorted({p.margin_source for p in res.pulses}))
+                           + "; model: the design's length at that margin (the bench never shortens it)")
         con.print(c)
     rec = res.recommended
     if res.failure is not None:

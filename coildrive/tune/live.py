@@ -252,9 +252,11 @@ class LiveTuner:
     ``design`` is the :class:`~coildrive.design.Design` of the drive the firmware runs;
     ``progress`` is called after each actuation. :meth:`run` returns a
     :class:`LiveResult`; every failure (and Ctrl-C) is in ``result.failure``, and the
-    device has been sent STOP. A hold live tuning cannot step (a latching coil, a
-    current-mode or closed-loop hold) raises :class:`InputError` here, the offline
-    sweep's refusal (:func:`coildrive.tune.sweep.check_tunable`).
+    device has been sent STOP. A hold live tuning cannot step (a current-mode or
+    closed-loop hold; a latching coil, whose pulses
+    :class:`~coildrive.tune.latch_live.LatchLiveTuner` tunes on the same session) raises
+    :class:`InputError` here, the offline sweep's refusal
+    (:func:`coildrive.tune.sweep.check_tunable`).
     """
 
     def __init__(self, link, design, options: LiveOptions | None = None,
