@@ -311,14 +311,15 @@ class LatchLiveTuner(LiveTuner):
         design_len = {p.name: p.time_s for p in self.design.latch.pulses}
         longest = max(in_force, *(v[1] for v in self._asked.values() if v is not None))
         self._full_scale(longest)
-        mark, _ = self._fire(0)
         release = self._release_window()
+        self._pump(0)   # (only what came before this pulse's START: its own events come after)
         late = [e for e in self._events if self._window_end is not None and e[2] == int(EventKind.SWITCH)
                 and e[1] >= self._window_end]
         if late:   # a change the last window missed: that pulse's verdict is not known
             raise LiveFailure("link", f"the position switch changed to {late[-1][3]} after pulse "
                               f"{len(res.actuations)}'s recording window: its verdict is not known (a slow "
                               "switch or armature: the device was stopped)")
+        mark, _ = self._fire(0)
         cap, on_index, on_value = self._gather(mark, longest, release, (EventKind.ON, EventKind.OFF, EventKind.SWITCH),
                                                None)
         offs = [e.index for e in cap.events if e.kind == int(EventKind.OFF)]
