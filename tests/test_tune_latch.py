@@ -101,7 +101,7 @@ def test_cli_table_and_the_latch_refusals(tmp_path):
     assert " ".join(res.stdout.split()).count("supply and copper mJ at the energy corner (28 V, coil -20 degC") == 2
     for args, words in (([str(RELAY), "--plot", str(tmp_path / "p.png")], "--plot"),
                         ([str(RELAY), "--margin", "0.9"], "--margin"),
-                        ([str(RELAY), "--port", "loop://"], "tune without --port sweeps its pulse lengths")):
+                        ([str(RELAY), "--port", "loop://", "--hold-time", "20 ms"], "a latching coil has no hold")):
         res = runner.invoke(app, ["tune", *args])
         assert res.exit_code == 2, res.output
         assert words in res.output and "Traceback" not in res.output

@@ -34,8 +34,22 @@ What the sense resistor reads (``docs/bench.md``, *A latching coil on the bench*
 
 Host commands: START fires the next pulse (set and reset alternate; BUSY while one runs
 or sooner than the design's interval after the last), STOP opens the switches at once,
-QUERY_INFO; the peak-and-hold settings (peak time, hold duty and frequency) do not apply
-(UNKNOWN_OPCODE).
+QUERY_INFO; SET_PULSE_TIME sets a timed pulse's length for the pulses of its kind that
+follow (whole scheduler ticks, 1 tick up to 1 s; a pulse from the boost ends at its
+threshold: OUT_OF_RANGE), as the live tune of a latch steps it
+(:mod:`coildrive.tune.latch_live`); the peak-and-hold settings (peak time, hold duty and
+frequency) do not apply (UNKNOWN_OPCODE).
+
+A position switch (INFO flag) with a moving armature, or a threshold switch
+(``threshold_switch``) on a drive without ``[armature]``: it closes (SWITCH 1) when a set
+pulse's current reaches ``pull_in.current`` -- with an armature, when the armature reaches
+the seat -- and opens (SWITCH 0) when a reset pulse's current reaches ``reset.current``
+(the catch or the magnet trips there: the current the design sizes the reset pulse to
+reach). The device starts unlatched. A set pulse at a length the host set (SET_PULSE_TIME)
+that ends before the armature rests on the seat is flown on
+(:func:`coildrive.model.latch_waveform.pulse`, ``fly``): the catch holds it if it reaches
+the seat, else it falls back open (a linear coil on a stiff bus; otherwise refused as
+before).
 """
 
 from __future__ import annotations
@@ -48,8 +62,8 @@ import numpy as np
 from ..config import Drive
 from ..design.latch import LatchDesign, firmware_pulse, winding_drive
 from .capture_file import CaptureEvent
-from .device import MIN_AUTO_PERIOD, DeviceOptions, OptionError, VirtualDevice, _Recording
-from .messages import EventKind, FaultCode, Opcode, ReplyStatus
+from .device import MAX_PEAK_TIME, MIN_AUTO_PERIOD, DeviceOptions, OptionError, VirtualDevice, _Recording
+from .messages import PULSE_RESET_BIT, EventKind, FaultCode, Opcode, ReplyStatus
 from .synth import first_sample_at_or_after
 
 #: ON event value of each pulse (``docs/protocol.md``, section 4.2).
@@ -59,13 +73,15 @@ PULSE_CODE = {"set": 0, "reset": 1}
 @dataclass(frozen=True)
 class PulseRun:
     """One pulse from zero: ``time`` s, the winding's current ``current`` A (its magnitude),
-    ``on_time`` s the switches are on, ``events`` (``on``, ``off``, ``zero``: s)."""
+    ``on_time`` s the switches are on, ``events`` (``on``, ``off``, ``zero``: s); with a
+    moving armature the set pulse's ``gap`` (m, 0 on the seat)."""
 
     kind: str
     time: np.ndarray
     current: np.ndarray
     on_time: float
     events: dict
+    gap: np.ndarray | None = None
 
 
 class LatchDevice(VirtualDevice):
@@ -97,7 +113,15 @@ class LatchDevice(VirtualDevice):
         self._boost_peak = None
         #: the FAULT events of each pulse, by its recording's number: [(s, FaultCode value)]
         self._faults: dict[int, list[tuple[float, int]]] = {}
-        self.info = self._make_info(False)
+        if options.threshold_switch and drive.armature is not None:
+            raise ValueError("a threshold switch stands in for a coil without [armature]; this "
+                             "drive's armature model seats by its own mechanics: leave it out")
+        #: SET_PULSE_TIME's lengths in force (s), by pulse
+        self._lengths: dict[str, float] = {}
+        #: the threshold switch: latched now, and before each recording (by its number)
+        self._latched = False
+        self._latched_before: dict[int, bool] = {}
+        self.info = self._make_info(options.threshold_switch or drive.armature is not None)
         if options.period is not None and options.period < self.interval:
             raise OptionError("period", f"{options.period:g} s is shorter than the design's shortest safe "
                               f"interval between pulses, {self.interval:g} s ({lt.governed_by})")
@@ -110,6 +134,8 @@ class LatchDevice(VirtualDevice):
         table entry for the device's supply, a pulse from the boost's the time its current
         reaches the threshold code at the device's coil
         (:func:`coildrive.design.latch.firmware_pulse`)."""
+        if kind in self._lengths:
+            return self._lengths[kind]
         o = self.options
         return firmware_pulse(self.design, kind, self.supply, self.coil_temp, o.resistance_scale,
                               o.inductance_scale)
@@ -121,9 +147,12 @@ class LatchDevice(VirtualDevice):
 
         kind, on_time = key
         o = self.options
-        t, i, _, _, t_zero, _, _ = pulse(self._drives[kind], self.supply, self.coil_temp,
-                                         o.resistance_scale, o.inductance_scale, on_time, 2000)
-        return PulseRun(kind, t, np.abs(i), on_time, {"on": 0.0, "off": on_time, "zero": t_zero})
+        # a length the host set (SET_PULSE_TIME): a set pulse too short to seat the armature
+        # is flown on (it may still reach the seat, else it falls back open)
+        t, i, _, _, t_zero, _, gap = pulse(self._drives[kind], self.supply, self.coil_temp,
+                                           o.resistance_scale, o.inductance_scale, on_time, 2000,
+                                           fly=kind in self._lengths)
+        return PulseRun(kind, t, np.abs(i), on_time, {"on": 0.0, "off": on_time, "zero": t_zero}, gap)
 
     def _sensed(self, w: PulseRun, t_rel: np.ndarray) -> np.ndarray:
         i = np.interp(t_rel, w.time, w.current)
@@ -134,10 +163,46 @@ class LatchDevice(VirtualDevice):
     def _events(self, rec: _Recording) -> list:
         fs = self.sample_rate
         w = rec.w
-        return [CaptureEvent(first_sample_at_or_after(rec.t_on, fs), int(EventKind.ON), PULSE_CODE[w.kind]),
-                CaptureEvent(first_sample_at_or_after(rec.t_on + w.on_time, fs), int(EventKind.OFF), 0),
-                *(CaptureEvent(first_sample_at_or_after(t, fs), int(EventKind.FAULT), code)
-                  for t, code in self._faults.get(rec.number, ()))]
+        out = [CaptureEvent(first_sample_at_or_after(rec.t_on, fs), int(EventKind.ON), PULSE_CODE[w.kind]),
+               CaptureEvent(first_sample_at_or_after(rec.t_on + w.on_time, fs), int(EventKind.OFF), 0),
+               *(CaptureEvent(first_sample_at_or_after(t, fs), int(EventKind.FAULT), code)
+                 for t, code in self._faults.get(rec.number, ()))]
+        if self.info.has_position_switch:
+            change = self._switch_change(rec)
+            if change is not None:
+                out.append(CaptureEvent(first_sample_at_or_after(rec.t_on + change[0], fs), int(EventKind.SWITCH),
+                                        change[1]))
+        return out
+
+    def _switch_change(self, rec: _Recording) -> tuple[float, int] | None:
+        """The threshold switch's change in recording ``rec`` (module docstring): ``(s from
+        its start, new level)``, or ``None``; the latch's state after it is kept when ``rec``
+        is the newest recording (a STOP plans it again, cut)."""
+        w = rec.w
+        before = self._latched_before.get(rec.number, self._latched)
+        level = 1 if w.kind == "set" else 0
+        change = None
+        if w.gap is not None and w.kind == "set":   # a moving armature latches where it reaches the seat
+            seat = np.flatnonzero(w.gap <= 0.0)
+            if seat.size and not before:
+                change = (float(w.time[seat[0]]), 1)
+            if rec.number == self._count:
+                self._latched = True if seat.size else before
+            return change
+        need = self.drive.pull_in.current if w.kind == "set" else self.drive.latch.reset_current
+        on = w.time <= w.on_time + 1e-15
+        reached = np.flatnonzero(on & (w.current >= need))
+        if reached.size and bool(before) != bool(level):
+            k = int(reached[0])
+            if k > 0:   # the crossing, linear between the waveform's points
+                t0, t1, i0, i1 = w.time[k - 1], w.time[k], w.current[k - 1], w.current[k]
+                t = float(t0 + (need - i0) * (t1 - t0) / (i1 - i0)) if i1 > i0 else float(t1)
+            else:
+                t = float(w.time[0])
+            change = (t, level)
+        if rec.number == self._count:
+            self._latched = bool(level) if change is not None else before
+        return change
 
     def _recording_span(self, hold_time: float) -> float:
         """s from the start of the longer pulse's recording to the end of its stream."""
@@ -166,14 +231,16 @@ class LatchDevice(VirtualDevice):
         length = self.pulse_time(kind)
         if self.times_out(kind):   # after its OFF, at the same sample, as the driver sends it
             self._faults[self._count + 1] = [(now + length, int(FaultCode.BOOST_TIMEOUT))]
+        self._latched_before[self._count + 1] = self._latched
         self._record(now, (kind, length))
 
     def _stop(self, now: float) -> bool:
         """STOP at ``now``: the switches open at once (the pulse ends there). With a moving
-        armature a set pulse cut before the armature rests on the seat is not modelled (the
-        catch would not hold it, and its fall back open is no part of
-        :mod:`coildrive.model.latch_waveform`): that pulse runs on to its end instead, and
-        ``False`` says so (a STOP command then replies BUSY)."""
+        armature a set pulse of the design's length cut before the armature rests on the
+        seat is not modelled (the catch would not hold it, and its fall back open is no part
+        of :mod:`coildrive.model.latch_waveform` there): that pulse runs on to its end
+        instead, and ``False`` says so (a STOP command then replies BUSY). A pulse at a
+        length the host set (SET_PULSE_TIME) is cut and flown on (module docstring)."""
         from ..model.latch_waveform import NotSeated
 
         rec = self._rec
@@ -200,7 +267,22 @@ class LatchDevice(VirtualDevice):
             return (ReplyStatus.OK if self._stop(now) else ReplyStatus.BUSY), 0
         if op == Opcode.QUERY_INFO:
             return ReplyStatus.OK, 0
+        if op == Opcode.SET_PULSE_TIME:
+            return self._set_pulse_time(int(cmd.argument))
         return ReplyStatus.UNKNOWN_OPCODE, 0
+
+    def _set_pulse_time(self, argument: int) -> tuple[int, int]:
+        """SET_PULSE_TIME (``docs/protocol.md``): the pulse (bit 31) and its length in us,
+        rounded to whole scheduler ticks; the reply's value the length in force, us."""
+        kind = "reset" if argument & PULSE_RESET_BIT else "set"
+        seconds = (argument & ~PULSE_RESET_BIT) * 1e-6
+        p = next(x for x in self.design.latch.pulses if x.name == kind)
+        now_us = int(round(self.pulse_time(kind) * 1e6))
+        ticks = int(round(seconds * self.tick_rate))
+        if p.boost is not None or ticks < 1 or seconds > MAX_PEAK_TIME:
+            return ReplyStatus.OUT_OF_RANGE, now_us
+        self._lengths[kind] = ticks / self.tick_rate
+        return ReplyStatus.OK, int(round(self._lengths[kind] * 1e6))
 
 
 __all__ = ["LatchDevice", "PulseRun", "PULSE_CODE"]

@@ -223,6 +223,8 @@ class LatchFirmwareDevice(LatchDevice):
             kind = self._next_kind
             self._start(now)
             return ReplyStatus.OK, int(round(self.pulse_time(kind) * 1e6))
+        if op == Opcode.SET_PULSE_TIME:   # the compiled driver's lengths are its header's constants
+            return ReplyStatus.UNKNOWN_OPCODE, 0
         return super()._execute(cmd, now)
 
     def shutdown(self, now: float) -> None:

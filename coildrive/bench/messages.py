@@ -81,6 +81,15 @@ class Opcode(IntEnum):
     """Hold PWM frequency. ``argument``: Hz."""
     QUERY_INFO = 6
     """Send an :class:`Info` frame now. ``argument``: 0."""
+    SET_PULSE_TIME = 7
+    """A latching coil's pulse length for the following pulses of one kind. ``argument``:
+    microseconds in bits 0..30; bit 31 clear for the set pulse, set for the reset pulse
+    (:data:`PULSE_RESET_BIT`). The reply's value: the length now in force, microseconds
+    (whole ticks of the device's scheduler)."""
+
+
+#: Bit 31 of a SET_PULSE_TIME argument: the reset pulse (clear: the set pulse).
+PULSE_RESET_BIT = 1 << 31
 
 
 class ReplyStatus(IntEnum):

@@ -54,7 +54,7 @@ def emulate_command(
     duration: Optional[str] = typer.Option(None, "--duration", help='Stop after this long, e.g. "10 s" (default: until SIGINT/SIGTERM).'),
     baud: Optional[int] = typer.Option(None, "--baud", help="Line rate in baud (default: the board file's link baud)."),
     line_log: Optional[Path] = typer.Option(None, "--line-log", help="When it stops, write the frames the line damaged (--drop-bytes, --corrupt-bytes) to this CSV: frame number, sequence number, kind, delimiter damaged."),
-    threshold_switch: bool = typer.Option(False, "--threshold-switch", help="A drive without [armature]: report a position switch that closes when the current reaches pull_in.current and opens when its mean over a PWM period falls below release.current (a relay's pick-up and drop-out)."),
+    threshold_switch: bool = typer.Option(False, "--threshold-switch", help="A drive without [armature]: report a position switch that closes when the current reaches pull_in.current and opens when its mean over a PWM period falls below release.current (a relay's pick-up and drop-out); a latching coil's closes when a set pulse reaches pull_in.current and opens when a reset pulse reaches reset.current."),
     firmware: Optional[Path] = typer.Option(None, "--firmware", help="Run the generated C driver of this folder (firmware-driver --out) in the device, compiled for this computer."),
 ) -> None:
     """Serve a virtual bench device for DRIVE on a pseudo-terminal; print its path first."""
@@ -101,9 +101,9 @@ def emulate_command(
             raise InputError("--channel", "", f"{drive} is a drive file, not a system file: leave --channel out")
         drv = load_drive(drive, board)
         d = None if drv.latch is not None else design(drv)
-    if threshold_switch and (d is None or firmware is not None):
+    if threshold_switch and firmware is not None:
         raise InputError("--threshold-switch", "", "the threshold switch runs in the built-in "
-                         "firmware of a PWM hold: leave it out with --firmware or a latching coil")
+                         "firmware: leave it out with --firmware")
     try:
         if d is None:   # a latching coil: its set and reset pulses
             device = _latch_device(Path(drv.source) if channel is not None else drive, drv, options, firmware,
@@ -170,6 +170,8 @@ def _latch_device(path: Path, drv, options, firmware: Optional[Path], fault: Opt
     except NotSeated as err:   # a moving armature not on the seat at the device's point
         raise InputError("--supply", "", str(err)) from None
     except ValueError as err:
+        if "threshold switch" in str(err):
+            raise InputError("--threshold-switch", "", str(err)) from None
         raise InputError(str(path), "thermal.max_coil_temp" if "interval" in str(err) else "reset.current" if "reset" in str(err) else "pull_in.current", str(err)) \
             from None
     status(f"latching coil: set pulse {device.pulse_time('set') * 1e3:.4g} ms, reset pulse "

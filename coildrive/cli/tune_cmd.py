@@ -62,8 +62,8 @@ def tune_command(
     supply: Optional[str] = typer.Option(None, "--supply", help='With --port: bench bus voltage (default: the device\'s SUPPLY events, else the nominal supply).'),
     coil_temp: Optional[str] = typer.Option(None, "--coil-temp", help="With --port: coil temperature (default: the device's TEMPERATURE events, else the reference temperature)."),
     hold_time: Optional[str] = typer.Option(None, "--hold-time", help="With --port: hold of each actuation (default: 10 time constants of the hold)."),
-    resolution: Optional[str] = typer.Option(None, "--resolution", help='With --port: search resolution, a fraction of the design duty (default "1 %").'),
-    detect: Optional[str] = typer.Option(None, "--detect", help="With --port: drop-out from the position switch or the current's signature: auto (default), switch, signature."),
+    resolution: Optional[str] = typer.Option(None, "--resolution", help='With --port: search resolution, a fraction of the design duty (a latching coil: of each pulse\'s design length; default "1 %").'),
+    detect: Optional[str] = typer.Option(None, "--detect", help="With --port: drop-out from the position switch or the current's signature: auto (default), switch, signature (a latching coil: the switch only)."),
 ) -> None:
     """Sweep PWM frequency and hold current over every corner; recommend the least-power
     hold that stays seated. Exit 1 when nothing is feasible or the design of the
@@ -72,7 +72,10 @@ def tune_command(
     With --port: find the drop-out duty on the bench (a coildrive bench-link device) and
     recommend the hold from it; exit 1 on a stuck armature, an open coil, an
     over-current, no drop-out, or a recommendation whose design fails; 130 on Ctrl-C.
-    The device is sent STOP on every exit."""
+    A latching coil with --port: the shortest set and reset pulses that latch and let go
+    on the bench (its position switch), scaled to the worst corner; exit 1 on a latch that
+    does not latch or let go at its design lengths, an open coil, an over-current, or a
+    recommendation whose design fails; 130 on Ctrl-C. The device is sent STOP on every exit."""
     live = {"--baud": baud, "--capture": capture, "--repeats": repeats, "--supply": supply,
             "--coil-temp": coil_temp, "--hold-time": hold_time, "--resolution": resolution,
             "--detect": detect}
@@ -85,6 +88,14 @@ def tune_command(
     if port is not None:
         if offline:
             raise InputError(offline[0], "", "belongs to the offline sweep; not with --port")
+        d = load_drive(drive, board)
+        if d.latch is not None:
+            if hold_time is not None:
+                raise InputError("--hold-time", "", "a latching coil has no hold: the live tune steps its "
+                                 "pulse lengths")
+            _latch_live(d, port, as_json, header, prefix, margin, baud, capture, repeats, supply, coil_temp,
+                        resolution, detect)
+            return
         _live(drive, board, port, as_json, header, prefix, margin, **{k[2:].replace("-", "_"): v for k, v in live.items()})
         return
     for option, value in live.items():
@@ -177,56 +188,131 @@ def _live(drive: Path, board: Optional[str], port: str, as_json: bool, header: O
           supply: Optional[str], coil_temp: Optional[str], hold_time: Optional[str],
           resolution: Optional[str], detect: Optional[str]) -> None:
     """``tune --port``: the live procedure of :mod:`coildrive.tune.live` over a DeviceLink."""
-    from datetime import datetime, timezone
-
-    from ..bench.link import DeviceLink, LinkError
-    from ..bench.synth import adc_scaling
     from ..design import design
     from ..tune.live import LiveOptions, LiveTuner
+    from ..tune.live_report import live_dict, print_live
     from ..tune.sweep import check_tunable
 
     options = LiveOptions(
-        repeats=3 if repeats is None else repeats,
-        supply=None if supply is None else parse_quantity(supply, "voltage", "--supply"),
-        coil_temp=None if coil_temp is None else parse_quantity(coil_temp, "temperature", "--coil-temp"),
         hold_time=0.0 if hold_time is None else parse_quantity(hold_time, "time", "--hold-time"),
-        resolution=0.01 if resolution is None else parse_quantity(resolution, "dimensionless", "--resolution"),
-        margin=margin, detect=detect or "auto")
+        **_shared_options(repeats, supply, coil_temp, resolution, margin, detect))
     options.check()
     if options.hold_time == 0 and hold_time is not None:
         raise InputError("--hold-time", "", f"{hold_time!r} must be greater than zero")
+    _check_link_options(baud, header, prefix)
+    d = load_drive(drive, board)
+    check_tunable(d, "live tuning steps")
+    des = design(d)
+    _refuse_failing(des, str(drive))
+    meta = {"peak_time_s": des.pull_in.peak_time_s, "hold_duty": des.hold.duty,
+            "hold_frequency_hz": des.hold.frequency_hz, "extra": {"procedure": "coildrive tune --port (live hold tuning)"}}
+    result = _bench_session(d, port, as_json, baud, capture, options, meta, "seat check at the design duty",
+                            lambda link, report: LiveTuner(link, des, options, progress=report).run(),
+                            live_dict, print_live)
+    rec = result.recommendation
+
+    def render() -> str:
+        from ..codegen.header import generate_header
+        return generate_header(rec.design, prefix)
+    _recommended_header(rec.design_ok, rec.design_failed, "hold", header, render)
+
+
+def _latch_live(d, port: str, as_json: bool, header: Optional[Path], prefix: str, margin: Optional[float],
+                baud: Optional[int], capture: Optional[Path], repeats: Optional[int], supply: Optional[str],
+                coil_temp: Optional[str], resolution: Optional[str], detect: Optional[str]) -> None:
+    """``tune --port`` of a latching coil: :mod:`coildrive.tune.latch_live` over a DeviceLink,
+    its table or JSON and log, and with ``--header`` the header of the recommended pulses
+    (only when their design passes)."""
+    from ..design.latch import design_latch
+    from ..tune.latch_live import LatchLiveOptions, LatchLiveTuner, check_latch_live
+    from ..tune.latch_live_report import latch_live_dict, print_latch_live
+
+    options = LatchLiveOptions(**_shared_options(repeats, supply, coil_temp, resolution, margin, detect))
+    options.check()
+    _check_link_options(baud, header, prefix)
+    check_latch_live(d)
+    des = design_latch(d)
+    _refuse_failing(des, d.source)
+    meta = {"extra": {"procedure": "coildrive tune --port (live tune of a latch's pulses)"}}
+    result = _bench_session(d, port, as_json, baud, capture, options, meta, "check at the design lengths",
+                            lambda link, report: LatchLiveTuner(link, des, options, progress=report).run(),
+                            latch_live_dict, print_latch_live)
+    rec = result.recommended
+
+    def render() -> str:
+        from ..codegen.latch_header import generate_latch_header
+        return generate_latch_header(rec, prefix)
+    _recommended_header(rec.ok, [c.name for c in rec.failed], "pulses", header, render)
+
+
+def _recommended_header(ok: bool, failed: list[str], what: str, header: Optional[Path], render) -> None:
+    """A live tune's end: exit 1 when the design of the recommended ``what`` fails (no
+    header), else ``--header`` written from ``render()``."""
+    if not ok:
+        status(f"coildrive tune: the design with the recommended {what} fails {', '.join(failed)}"
+               + (f"; header {header} not written" if header is not None else ""))
+        raise typer.Exit(1)
+    if header is not None:
+        write_atomic(header, render())
+        status(f"wrote header {header}")
+
+
+def _shared_options(repeats: Optional[int], supply: Optional[str], coil_temp: Optional[str],
+                    resolution: Optional[str], margin: Optional[float], detect: Optional[str]) -> dict:
+    """The options every live tune takes, parsed (their defaults filled in)."""
+    return dict(
+        repeats=3 if repeats is None else repeats,
+        supply=None if supply is None else parse_quantity(supply, "voltage", "--supply"),
+        coil_temp=None if coil_temp is None else parse_quantity(coil_temp, "temperature", "--coil-temp"),
+        resolution=0.01 if resolution is None else parse_quantity(resolution, "dimensionless", "--resolution"),
+        margin=margin, detect=detect or "auto")
+
+
+def _check_link_options(baud: Optional[int], header: Optional[Path], prefix: str) -> None:
     if baud is not None and not baud > 0:
         raise InputError("--baud", "", f"{baud} must be greater than zero")
     if header is not None:
         from ..codegen.header import check_prefix
         check_prefix(prefix)
-    d = load_drive(drive, board)
-    check_tunable(d, "live tuning steps")
-    des = design(d)
+
+
+def _refuse_failing(des, source: str) -> None:
+    """A failing design (switch voltage, coil temperature, ...) must not drive hardware: exit 1."""
     if not des.ok:
-        # a failing design (switch voltage, coil temperature, ...) must not drive hardware
-        status(f"coildrive tune: the design of {drive} fails {', '.join(c.name for c in des.failed)}: fix "
+        status(f"coildrive tune: the design of {source} fails {', '.join(c.name for c in des.failed)}: fix "
                "it (coildrive design) before tuning it on the bench; nothing was sent to the device")
         raise typer.Exit(1)
+
+
+def _bench_session(d, port: str, as_json: bool, baud: Optional[int], capture: Optional[Path], options,
+                   meta: dict, first_step: str, run, to_dict, show):
+    """What every live tune does around its procedure: the capture file (default
+    tune-DRIVE-UTCTIME.cdcap) and its ``.tune.json`` log beside it, the DeviceLink, a
+    progress bar on stderr, ``run(link, report)``, the result's JSON (``to_dict``) or table
+    (``show``). Exit 1 on a failure or an unacknowledged STOP (130 on Ctrl-C); else the
+    result."""
+    from datetime import datetime, timezone
+
+    from rich.console import Console
+    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
+
+    from ..bench.link import DeviceLink, LinkError
+    from ..bench.synth import adc_scaling
+
     if capture is None:
         stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
         capture = Path(f"tune-{d.name}-{stamp}.cdcap")
     log = capture.with_name(capture.stem + ".tune.json")
     meta = {"drive": d.name, "board": d.board.name, "sense_position": d.board.sense.position,
-            "amps_per_code": adc_scaling(d)[1], "peak_time_s": des.pull_in.peak_time_s,
-            "hold_duty": des.hold.duty, "hold_frequency_hz": des.hold.frequency_hz,
-            "extra": {"procedure": "coildrive tune --port (live hold tuning)"}}
+            "amps_per_code": adc_scaling(d)[1], **meta}
     if options.supply is not None:
         meta["supply_v"] = options.supply
     if options.coil_temp is not None:
         meta["coil_temp_c"] = options.coil_temp
     line_rate = baud or d.board.link.baud
-    from rich.console import Console
-    from rich.progress import BarColumn, MofNCompleteColumn, Progress, TextColumn, TimeElapsedColumn
-
     progress = Progress(TextColumn("{task.description}"), BarColumn(), MofNCompleteColumn(),
                         TimeElapsedColumn(), console=Console(stderr=True), transient=False)
-    task = progress.add_task("seat check at the design duty", total=None)
+    task = progress.add_task(first_step, total=None)
 
     def report(done: int, total: int, message: str) -> None:
         progress.update(task, completed=done, total=max(total, done), description=message)
@@ -238,15 +324,13 @@ def _live(drive: Path, board: Optional[str], port: str, as_json: bool, header: O
     with link:
         status(f"coildrive tune: live on {port} at {line_rate} baud; capture {capture}, log {log}")
         with progress:
-            result = LiveTuner(link, des, options, progress=report).run()
-    from ..tune.live_report import live_dict, print_live
-
-    doc = live_dict(result, port=port, capture=str(capture), log=str(log))
+            result = run(link, report)
+    doc = to_dict(result, port=port, capture=str(capture), log=str(log))
     write_atomic(log, json.dumps(doc, indent=2) + "\n")
     if as_json:
         typer.echo(json.dumps(doc, indent=2))
     else:
-        print_live(result, Console())
+        show(result, Console())
     if result.failure is not None:
         code, message = result.failure
         if as_json:  # the table above already shows the failure; with --json stdout is data
@@ -256,12 +340,4 @@ def _live(drive: Path, board: Optional[str], port: str, as_json: bool, header: O
     if not result.stopped:
         status(f"coildrive tune: {result.stop_detail}")
         raise typer.Exit(1)
-    rec = result.recommendation
-    if not rec.design_ok:
-        status(f"coildrive tune: the design with the recommended hold fails {', '.join(rec.design_failed)}"
-               + (f"; header {header} not written" if header is not None else ""))
-        raise typer.Exit(1)
-    if header is not None:
-        from ..codegen.header import generate_header
-        write_atomic(header, generate_header(rec.design, prefix))
-        status(f"wrote header {header}")
+    return result

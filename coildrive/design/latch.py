@@ -1074,3 +1074,33 @@ def latch_waveforms(d: LatchDesign) -> dict:
     return {label: latch_actuation(drive, winding_drive(drive, True), v, t, firmware_pulse(d, "set", v, t, rf, lf),
                                    firmware_pulse(d, "reset", v, t, rf, lf), gap, rf, lf, 400)
             for label, (v, t, rf, lf) in points.items()}
+
+
+def bench_pulse(drive: Drive, name: str, supply: float, coil_temp: float, t: float | None = None):
+    """Pulse ``name`` at one bench point (``supply`` V, coil ``coil_temp`` degC, nominal
+    parts; the live tune of a latch, :mod:`coildrive.tune.latch_live`): ``(time s to its
+    current -- with a moving armature its seat time, as the design sizes it --, current A
+    at ``t`` s into the pulse or ``nan``)``. The same requirement function as the design's
+    worst corner (``_requirements``), so the two scale alike."""
+    wd = winding_drive(drive, name == "reset")
+    lt = drive.latch
+    current, cm = ((lt.reset_current, lt.reset_current_margin) if name == "reset" else
+                   (drive.pull_in.current, drive.pull_in.current_margin))
+    one = np.ones(1)
+    pts = Points(np.array([float(supply)]), np.array([float(coil_temp)]), one, one)
+    lp, t_req, _, _, _ = _requirements(wd, pts, current, cm)
+    i_t = math.nan if t is None else float(np.ravel(rise_current_at(wd, lp, t))[0])
+    return float(np.ravel(t_req)[0]), i_t
+
+
+def highest_pulse_current(drive: Drive) -> float:
+    """The highest current any pulse can reach, A: the steady current of either winding's
+    loop at the highest supply, the coldest ambient and the lowest resistance (each rise
+    only approaches it)."""
+    top = 0.0
+    for reset in (False, True):
+        wd = winding_drive(drive, reset)
+        lp = loop(wd, drive.supply.max, drive.ambient.min, 1.0 - wd.coil.resistance_tolerance, 1.0,
+                  sense_factor=1.0 - drive.board.sense.resistance_tolerance)
+        top = max(top, float(np.max(np.asarray(lp.v_on, float) / np.asarray(lp.r_on, float))))
+    return top

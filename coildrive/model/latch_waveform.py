@@ -90,10 +90,12 @@ class LatchWaveform:
 
 
 def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_factor: float,
-           t_pulse: float, points: int, main_v: float | None = None):
+           t_pulse: float, points: int, main_v: float | None = None, fly: bool = False):
     """One pulse from zero: ``(t, i, on, bus, t_zero, release loop, gap)`` relative to its
     start (s, A, 0/1, the bus while on V), the time its current reaches zero, and with a
     moving armature its gap (m; 0 through the decay: the catch holds it), else ``None``.
+    ``fly``: a set pulse that ends before a moving armature rests on the seat is flown on
+    (:func:`_flight`) instead of refused (:class:`NotSeated`).
     With an eddy term (:mod:`coildrive.model.eddy`, a linear or a saturating branch) ``i``
     is the terminal current (what the sense and the switches carry): ``(v + R_e i_m)/(R +
     R_e)`` on, ``(R_e i_m - V_off)/(R_off + R_e)`` freewheeling until it reaches zero.
@@ -108,7 +110,13 @@ def pulse(drive: Drive, supply: float, coil_temp: float, r_factor: float, l_fact
     t_on = np.linspace(0.0, t_pulse, points + 1)
     gap_on = None
     if drive.armature is not None:   # the set pulse moves the armature (a drooping bus: a state of its run)
-        t_on, i_on, gap_on, bus = _seating(drive, lp, l_factor, t_pulse, points, supply, coil_temp)
+        try:
+            t_on, i_on, gap_on, bus = _seating(drive, lp, l_factor, t_pulse, points, supply, coil_temp)
+        except NotSeated:
+            if not fly:
+                raise
+            t, i, on, gap, t_zero = _flight(drive, lp, rel, l_factor, t_pulse, points, supply, coil_temp)
+            return t, i, on, np.where(on == 1, v, supply), t_zero, rel, gap
     elif drive.supply.boosted:   # from the boost capacitor (a curve's, an eddy term's: model.flux_boost)
         b = boost_of(drive, r_on, ind)
         m = boost_model.of(b)
@@ -402,6 +410,54 @@ def _seating(drive: Drive, lp, l_factor: float, t_pulse: float, points: int, sup
     # from the boost: the top of the coil is the capacitor (an ideal boost's voltage) less the
     # boost path's drop (the terminal current's, with an eddy term)
     return tr.time, i, tr.position, (u - s.boost_resistance * tr.current if s.boosted else u)
+
+
+#: How long after a set pulse cut short its flight is followed at most, s (our choice: the
+#: armature is back at the open stop or caught on the seat long before).
+FLIGHT_S = 1.0
+
+
+def _flight(drive: Drive, lp, rel, l_factor: float, t_pulse: float, points: int, supply: float,
+            coil_temp: float):
+    """A set pulse that ends before the moving armature rests on the seat (``pulse(...,
+    fly=True)``; a linear coil on a stiff bus): the armature flown on
+    (:func:`coildrive.model.armature_sim.simulate`) while the current decays through the
+    release path. The catch holds it from its first touch of the seat (``impact``), after
+    which the seated coil's decay runs on in closed form; else it falls back to the open stop
+    and the pulse did not latch. ``(t, i, on, gap, t_zero)`` relative to the pulse's start
+    (s, A, 0/1, m, s)."""
+    from .armature import params_from_loop
+    from .armature_sim import simulate
+
+    s = drive.supply
+    if s.droops or s.boosted or drive.coil.eddy_resistance or drive.armature.open_current:
+        raise NotSeated(f"the armature is not on the seat when the set pulse ends at {supply:g} V, coil "
+                        f"{coil_temp:g} degC; its flight after a cut pulse is flown for a linear coil on a "
+                        "stiff bus only")
+    p = params_from_loop(drive.armature, lp, l_factor)
+    q = params_from_loop(drive.armature, rel, l_factor)
+
+    def done(run) -> bool:
+        return "impact" in run.events or (not run.live and run.state == "open")
+    tr = simulate(p, [(t_pulse, True, points), (t_pulse + FLIGHT_S, False, points, "release")], points=points,
+                  release_params=q, stop=done)
+    t, i, x, on = tr.time, tr.current, tr.position, tr.switch_on.astype(float)
+    t_caught = tr.events.get("impact")
+    if t_caught is None:   # back open: the current is zero by now
+        return t, i, on, x, float(tr.events.get("zero", t[-1]))
+    if t_caught <= t_pulse:
+        raise NotSeated(f"the armature touches the seat during the set pulse at {supply:g} V, coil "
+                        f"{coil_temp:g} degC, but is not at rest there when it ends")
+    keep = t <= t_caught
+    i_c = float(i[keep][-1])
+    l_c = float(np.ravel(p.l_closed)[0])
+    r_off, v_off = float(np.ravel(rel.r_off)[0]), float(np.ravel(rel.v_off)[0])
+    tz = float(decay_time(0.0, i_c, r_off, v_off, l_c)) if i_c > 0 else 0.0
+    t_d = np.linspace(0.0, tz, points + 1)[1:]
+    i_d = np.maximum(decay_current(t_d, i_c, r_off, v_off, l_c), 0.0)
+    return (np.concatenate([t[keep], t_caught + t_d]), np.concatenate([i[keep], i_d]),
+            np.concatenate([on[keep], np.zeros(t_d.size)]), np.concatenate([x[keep], np.zeros(t_d.size)]),
+            t_caught + tz)
 
 
 def latch_actuation(drive: Drive, reset_drive: Drive, supply: float, coil_temp: float,

@@ -71,6 +71,17 @@ def print_latch_tune(r: LatchTune) -> None:
     if rec is None:
         con.print("no recommendation: " + "; ".join(r.notes or ["no swept step keeps the margins"]))
         return
+    print_recommended(con, rec)
+    for n in r.notes:
+        con.print(f"note: {n}")
+    for c in rec.cautions:
+        con.print(f"[yellow]caution[/yellow]: {c}")
+
+
+def print_recommended(con, rec) -> None:
+    """The recommended pulses (a :class:`~coildrive.design.latch.LatchDesign`), their
+    interval and hottest coil in one line, and the checks their design fails (the offline
+    and the live tune's)."""
     parts = ", ".join(f"{p.name} at {p.current_margin:g} x {p.current_a:.4g} A (code {p.boost.threshold_code}, "
                       f"time-out {p.ticks} ticks)" if p.boost is not None else
                       f"{p.name} at margin {p.margin:g} ({p.table.ticks[0]}..{p.table.ticks[-1]} ticks, "
@@ -80,10 +91,6 @@ def print_latch_tune(r: LatchTune) -> None:
               f"({rec.latch.governed_by}); coil at most {rec.latch.hottest_coil_c:.4g} degC")
     if rec.failed:
         con.print("its design fails: " + ", ".join(c.name for c in rec.failed))
-    for n in r.notes:
-        con.print(f"note: {n}")
-    for c in rec.cautions:
-        con.print(f"[yellow]caution[/yellow]: {c}")
 
 
 def _print_lengths(con, r: LatchTune) -> None:

@@ -104,12 +104,7 @@ class LiveOptions:
 
     def check(self) -> None:
         """Raise :class:`InputError` naming the option for a value out of range."""
-        if not 1 <= self.repeats <= 100:
-            raise InputError("--repeats", "", f"{self.repeats} is out of range, expected 1..100")
-        if self.supply is not None and not (math.isfinite(self.supply) and self.supply > 0):
-            raise InputError("--supply", "", f"{self.supply:g} V must be greater than zero")
-        if self.coil_temp is not None and not (math.isfinite(self.coil_temp) and self.coil_temp > -273.15):
-            raise InputError("--coil-temp", "", f"{self.coil_temp:g} degC is not a temperature")
+        check_bench_options(self)
         if not (math.isfinite(self.hold_time) and 0 <= self.hold_time <= 10.0):
             raise InputError("--hold-time", "", f"{self.hold_time:g} s is out of range, expected 0 "
                              "(automatic) up to 10 s")
@@ -127,8 +122,19 @@ class LiveOptions:
                              "the bench drop-out current")
         if self.detect not in DETECTIONS:
             raise InputError("--detect", "", f"{self.detect!r} is not one of {', '.join(DETECTIONS)}")
-        if not self.timeout > 0:
-            raise InputError("--timeout", "", f"{self.timeout:g} s must be greater than zero")
+
+
+def check_bench_options(o) -> None:
+    """The options every live tune shares (``repeats``, ``supply``, ``coil_temp``,
+    ``timeout``): :class:`InputError` naming the option for a value out of range."""
+    if not 1 <= o.repeats <= 100:
+        raise InputError("--repeats", "", f"{o.repeats} is out of range, expected 1..100")
+    if o.supply is not None and not (math.isfinite(o.supply) and o.supply > 0):
+        raise InputError("--supply", "", f"{o.supply:g} V must be greater than zero")
+    if o.coil_temp is not None and not (math.isfinite(o.coil_temp) and o.coil_temp > -273.15):
+        raise InputError("--coil-temp", "", f"{o.coil_temp:g} degC is not a temperature")
+    if not o.timeout > 0:
+        raise InputError("--timeout", "", f"{o.timeout:g} s must be greater than zero")
 
 
 # --------------------------------------------------------------------------- results
@@ -152,25 +158,21 @@ class LiveActuation:
 
 
 @dataclass
-class LiveResult:
-    """Everything a live tuning found (plain data; see docs/tuning.md for the JSON)."""
+class SessionResult:
+    """What every live tune records of its session: the drive, its design and the options;
+    the bench point, the device (from its INFO), how latching or drop-out is detected, the
+    over-current and open-load limits (A); how it ended (``failure``: code and message),
+    whether the STOP was acknowledged, the commands sent, the link's statistics, notes and
+    the time taken (s)."""
 
     drive: Drive
     design: object
-    options: LiveOptions
+    options: object
     point: BenchPoint | None = None
     device: dict = field(default_factory=dict)
     detection: str = ""
-    hold_time_s: float = 0.0
-    resolution_duty: float = 0.0
-    floor_duty: float = 0.0
     over_current_a: float = 0.0
     open_load_a: float = 0.0
-    actuations: list[LiveActuation] = field(default_factory=list)
-    repeats: list[RepeatResult] = field(default_factory=list)
-    model_dropout_duty: float = math.nan
-    model_dropout_current_a: float = math.nan
-    recommendation: LiveRecommendation | None = None
     failure: tuple[str, str] | None = None
     stopped: bool = False
     stop_detail: str = ""
@@ -178,6 +180,20 @@ class LiveResult:
     link: dict = field(default_factory=dict)
     notes: list[str] = field(default_factory=list)
     seconds: float = 0.0
+
+
+@dataclass
+class LiveResult(SessionResult):
+    """Everything a live tuning found (plain data; see docs/tuning.md for the JSON)."""
+
+    hold_time_s: float = 0.0
+    resolution_duty: float = 0.0
+    floor_duty: float = 0.0
+    actuations: list[LiveActuation] = field(default_factory=list)
+    repeats: list[RepeatResult] = field(default_factory=list)
+    model_dropout_duty: float = math.nan
+    model_dropout_current_a: float = math.nan
+    recommendation: LiveRecommendation | None = None
 
     @property
     def ok(self) -> bool:
@@ -236,14 +252,15 @@ class LiveTuner:
     ``design`` is the :class:`~coildrive.design.Design` of the drive the firmware runs;
     ``progress`` is called after each actuation. :meth:`run` returns a
     :class:`LiveResult`; every failure (and Ctrl-C) is in ``result.failure``, and the
-    device has been sent STOP. A hold live tuning cannot step (a latching coil, a
-    current-mode or closed-loop hold) raises :class:`InputError` here, the offline
-    sweep's refusal (:func:`coildrive.tune.sweep.check_tunable`).
+    device has been sent STOP. A hold live tuning cannot step (a current-mode or
+    closed-loop hold; a latching coil, whose pulses
+    :class:`~coildrive.tune.latch_live.LatchLiveTuner` tunes on the same session) raises
+    :class:`InputError` here, the offline sweep's refusal
+    (:func:`coildrive.tune.sweep.check_tunable`).
     """
 
     def __init__(self, link, design, options: LiveOptions | None = None,
                  progress: Progress | None = None, clock: Callable[[], float] = time.monotonic):
-        self.link = link
         self.design = design
         self.drive: Drive = design.drive
         self.options = options or LiveOptions()
@@ -253,9 +270,18 @@ class LiveTuner:
         from .sweep import check_tunable
 
         check_tunable(self.drive, "live tuning steps")
+        self._open_session(link, progress, clock)
+        self.result = LiveResult(drive=self.drive, design=design, options=self.options)
+        self._frequency = float(design.hold.frequency_hz)
+        self._ripple = 0.0
+        self._bump_expected = False
+
+    def _open_session(self, link, progress: Progress | None, clock: Callable[[], float]) -> None:
+        """The link's state shared by every live procedure (this one and a latching coil's,
+        :mod:`coildrive.tune.latch_live`): queues, sample indices, the device's events."""
+        self.link = link
         self.progress = progress
         self.clock = clock
-        self.result = LiveResult(drive=self.drive, design=design, options=self.options)
         self._q = None
         self._unwrap = _Unwrap()
         self._samples: list[tuple[int, np.ndarray]] = []   # (first index, codes), arrival order
@@ -269,9 +295,6 @@ class LiveTuner:
         self._temperatures: list[int] = []
         self._last_samples_at = 0.0
         self._expected_total = 0
-        self._frequency = float(design.hold.frequency_hz)
-        self._ripple = 0.0
-        self._bump_expected = False
         self._t0 = clock()
 
     # ------------------------------------------------------------------ plumbing
@@ -389,11 +412,28 @@ class LiveTuner:
             self.result.stopped = False
             self.result.stop_detail = (f"STOP not acknowledged ({err}): switch the coil supply off by hand")
 
+    def _close(self) -> None:
+        """STOP (:meth:`_stop`), then the link's statistics and the time taken into the result."""
+        res = self.result
+        self._stop()
+        try:
+            st = self.link.stats()
+            res.link = {k: getattr(st, k) for k in ("elapsed_s", "bytes", "bytes_per_s", "frames", "samples",
+                                                      "crc_errors", "malformed", "lost_frames",
+                                                      "samples_missing", "actuations", "error")
+                        if hasattr(st, k)}
+        except Exception as err:  # noqa: BLE001 -- statistics are a courtesy after a failure
+            res.link = {"error": str(err)}
+        res.seconds = self.clock() - self._t0
+
     # ------------------------------------------------------------------ setup
-    def _setup(self) -> None:
+    def _query_info(self, over_current_a: float, open_load_a: float) -> None:
+        """QUERY_INFO and wait for the INFO; ``result.device`` and ``result.detection`` from
+        it (``options.detect``); the over-current limit ``over_current_a`` A (any sample
+        above it, or at the ADC's full scale, stops the procedure) and the open-load
+        threshold ``open_load_a`` A."""
         from ..bench.messages import Opcode
 
-        des = self.design
         res = self.result
         self._command(Opcode.QUERY_INFO)
         end = self.clock() + 2.0
@@ -415,10 +455,17 @@ class LiveTuner:
             raise LiveFailure("refused", "--detect switch: the device says it has no position switch "
                               "(INFO flag clear)")
         res.detection = ("switch" if info.has_position_switch else "signature") if detect == "auto" else detect
-        res.over_current_a = float(des.adc.over_current_a)
-        res.open_load_a = float(des.adc.open_load_a)
+        res.over_current_a = over_current_a
+        res.open_load_a = open_load_a
         self._full_code = 2**info.adc_bits - 1
         self._limit_code = zero + int(math.floor(res.over_current_a / apc))
+
+    def _setup(self) -> None:
+        from ..bench.messages import Opcode
+
+        des = self.design
+        res = self.result
+        self._query_info(float(des.adc.over_current_a), float(des.adc.open_load_a))
         # the peak: never longer than the design's
         want_us = int(math.floor(des.pull_in.peak_time_s * 1e6 + 1e-6))
         r = self._command(Opcode.SET_PEAK_TIME, want_us)
@@ -439,21 +486,17 @@ class LiveTuner:
     def _events_after(self, arrival: int, kinds) -> list[tuple[int, int, int, int]]:
         return [e for e in self._events if e[0] > arrival and e[2] in kinds]
 
-    def _actuate(self, duty: float, repeat: int, step: str) -> LiveActuation:
-        from ..bench.capture_file import Capture, CaptureEvent
-        from ..bench.messages import EventKind, Opcode
+    def _fire(self, argument: int) -> tuple[int, object]:
+        """START (``argument`` as the protocol has it); ``(mark, reply)``: the arrival number
+        from which the messages are this actuation's, and the START reply."""
+        from ..bench.messages import Opcode
 
-        des = self.design
-        res = self.result
-        r = self._command(Opcode.SET_HOLD_DUTY, int(round(min(max(duty, 0.0), 1.0) * 65535)))
-        in_force = r.value / 65535 if r.value else duty
         self._pump(0)
         if self._samples:  # keep only what may precede the next switch-on
             newest = max(f + c.size for f, c in self._samples)
             self._samples = [(f, c) for f, c in self._samples if f + c.size > newest - 4 * PRE_SAMPLES]
         mark = self._arrival
-        started = self._command(Opcode.START, int(round(res.hold_time_s * 1e6)))
-        hold_in_force = started.value * 1e-6 if started.value else res.hold_time_s
+        started = self._command(Opcode.START, argument)
         # the START reply reaches the queue just after command() returned: what came
         # before it in the stream is an older actuation's
         end = self.clock() + 0.5
@@ -462,13 +505,17 @@ class LiveTuner:
             starts = [a for a, rep in self._replies if a > mark and rep.opcode == Opcode.START and rep.status == 0]
             if starts or self.clock() > end:
                 break
-        mark = starts[-1] if starts else self._arrival
+        return (starts[-1] if starts else self._arrival), started
+
+    def _gather(self, mark: int, length: float, release: float, kinds, hold_frequency: float | None):
+        """Wait for the actuation started after arrival ``mark`` (``length`` s on, its
+        current back at zero ``release`` s after the OFF) and cut it out of the stream:
+        ``(capture, ON index, ON value)``, the capture holding the events of ``kinds``
+        (the ON at its start only)."""
+        from ..bench.capture_file import Capture, CaptureEvent
+        from ..bench.messages import EventKind
+
         fs = float(self._info.sample_rate_hz)
-        length = res.device["peak_time_s"] + res.hold_time_s
-        release = float(des.release.zero_time_s)
-        if des.armature is not None and math.isfinite(des.armature.release_open_time_s):
-            release = max(release, float(des.armature.release_open_time_s))
-        release = 1.5 * release + 0.002
         quiet_s = max(QUIET_S, 40 * 140 * 10.0 / (getattr(self.link, "baud", None) or self.drive.board.link.baud))
         samples = (length + release) * fs
         baud = getattr(self.link, "baud", None) or self.drive.board.link.baud
@@ -522,16 +569,32 @@ class LiveTuner:
         uniq = np.concatenate([[True], np.diff(index) > 0])
         index, code = index[uniq], code[uniq]
         events = [CaptureEvent(i, k, v) for a, i, k, v in self._events
-                  if lo <= i < hi and k in (EventKind.ON, EventKind.PEAK_END, EventKind.OFF, EventKind.SWITCH)
-                  and (k != EventKind.ON or i == on_index)]
+                  if lo <= i < hi and k in kinds and (k != EventKind.ON or i == on_index)]
         apc, zero = self._scaling()
         cap = Capture.from_codes(code, index=index, events=events, source="live", sample_rate_hz=fs,
                                  adc_bits=self._info.adc_bits, amps_per_code=apc, zero_code=zero,
                                  sense_position=self.drive.board.sense.position,
-                                 hold_frequency_hz=self._frequency)
+                                 **({} if hold_frequency is None else {"hold_frequency_hz": hold_frequency}))
         # drop what is done with, keep the tail (it may hold the next actuation's start)
         self._samples = [(f, c) for f, c in self._samples if f + c.size > hi]
         self._events = [e for e in self._events if e[1] >= hi or e[0] > off[0]]
+        return cap, on_index, on[3]
+
+    def _actuate(self, duty: float, repeat: int, step: str) -> LiveActuation:
+        from ..bench.messages import EventKind, Opcode
+
+        des = self.design
+        res = self.result
+        r = self._command(Opcode.SET_HOLD_DUTY, int(round(min(max(duty, 0.0), 1.0) * 65535)))
+        in_force = r.value / 65535 if r.value else duty
+        mark, started = self._fire(int(round(res.hold_time_s * 1e6)))
+        hold_in_force = started.value * 1e-6 if started.value else res.hold_time_s
+        release = float(des.release.zero_time_s)
+        if des.armature is not None and math.isfinite(des.armature.release_open_time_s):
+            release = max(release, float(des.armature.release_open_time_s))
+        cap, on_index, _ = self._gather(mark, res.device["peak_time_s"] + res.hold_time_s, 1.5 * release + 0.002,
+                                        (EventKind.ON, EventKind.PEAK_END, EventKind.OFF, EventKind.SWITCH),
+                                        self._frequency)
         j = judge_actuation(cap, hold_frequency=self._frequency, use_switch=res.detection == "switch",
                             release_bump_expected=self._bump_expected, ripple_a=self._ripple,
                             pull_in_current=self.drive.pull_in.current,
@@ -616,51 +679,20 @@ class LiveTuner:
 
     def run(self) -> LiveResult:
         """Run the procedure (see the module docstring); STOP on every exit."""
+        self._bump_expected = False
+        return self._session(self._procedure)
+
+    def _session(self, procedure: Callable[[], None]):
+        """Run ``procedure`` on the link: a :class:`LiveFailure`, a link error or Ctrl-C
+        ends it into ``result.failure``; STOP (:meth:`_close`) on every exit. The result."""
         from ..bench.link import LinkError
 
-        res = self.result
-        des = self.design
-        o = self.options
+        res, o = self.result, self.options
         self._t0 = self.clock()
         self._q = self.link.subscribe()
-        self._bump_expected = False
         try:
             try:
-                self._setup()
-                self._model_at_bench()
-                d0 = float(des.hold.duty)
-                res.floor_duty = o.floor * d0
-                res.resolution_duty = max(o.resolution * d0, 1.0 / des.timer.period_ticks)
-                auto = default_hold_time(self.drive, res.point, self._frequency, [res.floor_duty, d0])
-                res.hold_time_s = o.hold_time if o.hold_time > 0 else auto
-                if res.hold_time_s < auto:
-                    res.notes.append(f"the hold ({res.hold_time_s * 1e3:.4g} ms) is shorter than the automatic "
-                                     f"{auto * 1e3:.4g} ms ({HOLD_SETTLE_TAUS:g} time constants): near the "
-                                     "threshold the armature may not lift within it, so the drop-out duty comes "
-                                     "out low" + (" (the signature needs the gap to open visibly)"
-                                                  if res.detection == "signature" else ""))
-                hf = hold_figures(self.drive, res.point, d0, self._frequency)
-                self._ripple = float(hf.ripple_a[0])
-                coarse = max(1, math.ceil((d0 - res.model_dropout_duty) / (o.coarse_step * d0))) \
-                    if math.isfinite(res.model_dropout_duty) else 3
-                bisect = max(0, math.ceil(math.log2(o.coarse_step / o.resolution)))
-                self._expected_total = 1 + o.repeats * (coarse + bisect)
-                first = self._one(d0, 0, "design duty")
-                if first.judgement.dropped:
-                    raise LiveFailure("drops_at_design", f"the armature drops out already at the design duty "
-                                      f"{first.duty:.4f} ({first.judgement.evidence}): the hold is too weak for "
-                                      "this bench -- check the coil, the supply and the mechanics before raising "
-                                      "hold.current; the device was stopped")
-                self._bump_expected = first.judgement.release_bump_a is not None
-                if (o.supply is None and self._supply_codes) or (o.coil_temp is None and self._temperatures):
-                    self._model_at_bench()  # again, with the device's events of the first actuation
-                if res.detection == "signature" and not self._bump_expected:
-                    res.notes.append("the design-duty actuation shows no release bump: drop-out is judged from "
-                                     "the hold current's rise alone")
-                for k in range(1, o.repeats + 1):
-                    res.repeats.append(self._search(k, d0))
-                top = float(res.currents().max())
-                res.recommendation = recommend(self.drive, res.point, top, o.margin)
+                procedure()
             except LiveFailure as f:
                 res.failure = (f.code, f.message)
             except LinkError as err:
@@ -668,16 +700,47 @@ class LiveTuner:
             except KeyboardInterrupt:
                 res.failure = ("interrupted", "interrupted (Ctrl-C)")
         finally:
-            self._stop()
-            try:
-                st = self.link.stats()
-                res.link = {k: getattr(st, k) for k in ("elapsed_s", "bytes", "bytes_per_s", "frames", "samples",
-                                                          "crc_errors", "malformed", "lost_frames",
-                                                          "samples_missing", "actuations", "error")
-                            if hasattr(st, k)}
-            except Exception as err:  # noqa: BLE001 -- statistics are a courtesy after a failure
-                res.link = {"error": str(err)}
-            res.seconds = self.clock() - self._t0
+            self._close()
         if res.point is None:
             res.point = bench_point(self.drive, o.supply, o.coil_temp)
         return res
+
+    def _procedure(self) -> None:
+        res = self.result
+        des = self.design
+        o = self.options
+        self._setup()
+        self._model_at_bench()
+        d0 = float(des.hold.duty)
+        res.floor_duty = o.floor * d0
+        res.resolution_duty = max(o.resolution * d0, 1.0 / des.timer.period_ticks)
+        auto = default_hold_time(self.drive, res.point, self._frequency, [res.floor_duty, d0])
+        res.hold_time_s = o.hold_time if o.hold_time > 0 else auto
+        if res.hold_time_s < auto:
+            res.notes.append(f"the hold ({res.hold_time_s * 1e3:.4g} ms) is shorter than the automatic "
+                             f"{auto * 1e3:.4g} ms ({HOLD_SETTLE_TAUS:g} time constants): near the "
+                             "threshold the armature may not lift within it, so the drop-out duty comes "
+                             "out low" + (" (the signature needs the gap to open visibly)"
+                                          if res.detection == "signature" else ""))
+        hf = hold_figures(self.drive, res.point, d0, self._frequency)
+        self._ripple = float(hf.ripple_a[0])
+        coarse = max(1, math.ceil((d0 - res.model_dropout_duty) / (o.coarse_step * d0))) \
+            if math.isfinite(res.model_dropout_duty) else 3
+        bisect = max(0, math.ceil(math.log2(o.coarse_step / o.resolution)))
+        self._expected_total = 1 + o.repeats * (coarse + bisect)
+        first = self._one(d0, 0, "design duty")
+        if first.judgement.dropped:
+            raise LiveFailure("drops_at_design", f"the armature drops out already at the design duty "
+                              f"{first.duty:.4f} ({first.judgement.evidence}): the hold is too weak for "
+                              "this bench -- check the coil, the supply and the mechanics before raising "
+                              "hold.current; the device was stopped")
+        self._bump_expected = first.judgement.release_bump_a is not None
+        if (o.supply is None and self._supply_codes) or (o.coil_temp is None and self._temperatures):
+            self._model_at_bench()  # again, with the device's events of the first actuation
+        if res.detection == "signature" and not self._bump_expected:
+            res.notes.append("the design-duty actuation shows no release bump: drop-out is judged from "
+                             "the hold current's rise alone")
+        for k in range(1, o.repeats + 1):
+            res.repeats.append(self._search(k, d0))
+        top = float(res.currents().max())
+        res.recommendation = recommend(self.drive, res.point, top, o.margin)

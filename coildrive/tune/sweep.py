@@ -635,8 +635,8 @@ def hold_toml(drive: Drive, c: Candidate) -> str:
 # --------------------------------------------------------------------------- the sweep
 def check_tunable(drive: Drive, who: str) -> None:
     """Raise :class:`InputError` (naming the key) for a hold that tuning cannot step: a
-    latching coil's pulses (the offline sweep of their lengths is :mod:`coildrive.tune.latch`;
-    live tuning of a latch is not built), a current-mode hold, a closed-loop hold. ``who``: the start of
+    latching coil's pulses (the offline sweep of their lengths is :mod:`coildrive.tune.latch`,
+    the live one :mod:`coildrive.tune.latch_live`), a current-mode hold, a closed-loop hold. ``who``: the start of
     the message (``"coildrive tune sweeps"``, ``"live tuning steps"``); the offline sweep
     and live tuning share these refusals. Both take a flux-linkage curve (every figure on
     the curve's exact orbit, :func:`coildrive.model.flux.orbit`, as in the design), an
@@ -651,7 +651,7 @@ def check_tunable(drive: Drive, who: str) -> None:
     tuning never recommends a band or off time checked on the settled coil only."""
     if drive.hold.mode == "latch":
         raise InputError(drive.source, "hold.mode", f"{who} the PWM of a hold; a latching coil has "
-                         "none: coildrive tune without --port sweeps its pulse lengths offline")
+                         "none: coildrive tune sweeps its pulse lengths (offline, or on the bench with --port)")
     if drive.hold.mode != "voltage":
         raise InputError(drive.source, "hold.mode", f"{who} the PWM of a voltage-mode hold; for "
                          "mode = \"current\" run coildrive design (it sizes the thresholds and checks "
