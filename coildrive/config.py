@@ -1536,9 +1536,11 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     the flights after the threshold taking each off-time's fast part through the body
     diodes; or the closed loop, which carries an armature in flight with its own PI:
     :func:`coildrive.design.boost_armature.loop_pull_in`, an eddy term too: its conversions
-    of the terminal current) or a current-mode hold -- that one where the design finds the
-    armature seated within the peak at every corner
-    (:func:`coildrive.design.boost_armature.require_seated_in_peak`), a bouncing seat (``restitution``;
+    of the terminal current) or a current-mode hold -- its comparator carrying an armature
+    still in flight at the threshold (:func:`coildrive.design.boost_armature.threshold_pull_in`,
+    a linear coil on a stiff main supply); with an eddy term or on a drooping main supply
+    where the design finds the armature seated within the peak at every corner
+    (:func:`coildrive.design.boost_armature.require_seated_in_peak`) --, a bouncing seat (``restitution``;
     an eddy term too: the conversion after the threshold flown, :func:`coildrive.model.armature_boost.window_flight`),
     an on/off cycle (the peak's heat is the run's copper integral, with an eddy term plus its core loss
     bounded by the first law: :func:`coildrive.design.boost_armature.peak_heat`).

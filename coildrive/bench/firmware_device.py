@@ -177,6 +177,15 @@ class FirmwareDevice(LineOutput):
         self.design = design
         drive = design.drive
         self.drive = drive
+        ar = design.armature
+        if (design.boost is not None and design.hold.regulation == "current" and ar is not None
+                and ar.seated_in_peak_corners is not None and ar.seated_in_peak_corners < ar.corners):
+            # (the comparator stepped in the loop is the seated coil's closed form)
+            raise ValueError("the compiled driver's current-mode hold after the boosted peak runs in the "
+                             "loop only where the armature seats within the peak at every corner (at "
+                             f"{ar.corners - ar.seated_in_peak_corners} of {ar.corners} the comparator carries "
+                             "it in flight, which the design, simulate and emulate without --firmware "
+                             "model): expected a higher threshold (pull_in.current_margin) or no --firmware")
         board = drive.board
         self.lib = load_library(library)
         self.supply, self.coil_temp = operating_point(drive, o.supply, o.coil_temp)
