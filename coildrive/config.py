@@ -1524,8 +1524,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     :func:`coildrive.model.bus_decay.eddy_decay_drawn_no_sink`), or on a curve on a supply
     that sinks; with a moving armature, a linear coil (an eddy
     term too), the hold's flight on it -- with a clamp across the switch,
-    whose off-times draw from the bus, without split decay
-    (:meth:`coildrive.model.armature.ArmatureParams.clamped`); on a full bridge its release
+    whose off-times draw from the bus
+    (:meth:`coildrive.model.armature.ArmatureParams.clamped`), or with split decay only its
+    release (:func:`coildrive.design.boost_armature.clamp_draws`); on a full bridge its release
     into the bus with the converter idle or drawing,
     :func:`coildrive.model.armature_bus_release.release_over`, a slow-decay hold), a PWM
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
@@ -1575,10 +1576,6 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = "freewheel.type", ("a latching coil's pulses from the boost with a clamp across the switch "
                                       "on a drooping main supply (the clamp's draw on it after each pulse, with "
                                       "the converter's: a stiff main supply only)")
-    elif armature is not None and supply.droops and freewheel.type == "clamp" and freewheel.split_decay:
-        key, why = "freewheel.split_decay", ("a drooping main supply, a moving armature and a clamp bypassed "
-                                             "in the hold (split decay: the clamp's draw from the bus while "
-                                             "the armature may be in flight is modelled in the hold's off-times)")
     elif armature is not None and supply.droops and hold.fast_fraction > 0:
         key, why = "hold.fast_fraction", ("a moving armature, a full bridge's mixed-decay hold and a drooping main "
                                           "supply together (the hold's fast parts into the bus with the boost "
@@ -1600,7 +1597,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "term on a linear coil, or on a curve on a supply that sinks; with [armature] a "
                          "linear coil, an eddy term too (or its open and seated flux-linkage curves from a "
                          "boost capacitor on one switch, a stiff main supply, a voltage-mode fixed or "
-                         "supply-table hold), a clamp without split decay, on a full bridge a "
+                         "supply-table hold), a clamp (split decay too), on a full bridge a "
                          "slow-decay hold), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; a "
                          "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, or a "

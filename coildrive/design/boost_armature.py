@@ -54,7 +54,7 @@ from ..model.armature import ArmatureParams, params_from_loop
 from ..model.armature_boost import (boost_energy, boost_params, boosted_pull_in, curve_window, seated_in_peak,
                                     window_flight)
 from ..model.armature_runs import PullInBatch, pull_in
-from ..model.circuit import Loop
+from ..model.circuit import Loop, split_decay
 from ..model.rl import rise_current
 from .timer import conversion_period
 
@@ -232,9 +232,10 @@ def pwm_on_bus(drive: Drive) -> bool:
 def clamp_draws(drive: Drive, p: ArmatureParams) -> ArmatureParams:
     """``p`` (points on the drooping main bus, ``v_on`` the source's voltage) with the hold's
     off-times through a clamp across the switch drawing from the bus
-    (:meth:`~coildrive.model.armature.ArmatureParams.clamped`) where the drive has one; else
-    ``p``."""
-    return p.clamped() if p.droops and drive.freewheel.type == "clamp" else p
+    (:meth:`~coildrive.model.armature.ArmatureParams.clamped`) where the drive has one and
+    no split decay bypasses it in the hold (then only the release draws through it: after
+    the seat, under :func:`coildrive.design.supply.armature_clamp_bus`'s floor); else ``p``."""
+    return p.clamped() if p.droops and drive.freewheel.type == "clamp" and not split_decay(drive) else p
 
 
 def main_bus(drive: Drive, p: ArmatureParams, i_top) -> tuple[ArmatureParams, np.ndarray]:

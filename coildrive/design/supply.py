@@ -121,6 +121,10 @@ HANDOVER_ARMATURE_CLAMP = ("the armature's runs from the hand-over on the droopi
                            "the source through R_s carries every draw (the coil at most the largest of "
                            "the hand-over current, the hold's top and its first on-time on a stiff bus "
                            "from the larger of the hand-over and the seat's current; the boost converter)")
+#: ... and split decay: the hold's off-times bypass the clamp, only the release draws through it.
+HANDOVER_ARMATURE_SPLIT = HANDOVER_ARMATURE_CLAMP.replace(
+    "(the clamp's off-times drawing from it)", "(the off-times through the bypass: the clamp draws only at "
+    "the release, under the floor)")
 #: ... where the hold's switching is not a fixed PWM, or a clamp draws in its off-times.
 HANDOVER_FLOOR = ("a floor: the source through R_s carries every draw from the hand-over on "
                   "(the coil at most the largest of the hand-over current, its first on-time "
@@ -314,7 +318,7 @@ def handover_bus(drive: Drive, res, duty, first_duty=None) -> tuple[np.ndarray, 
         ind, r_e = ind.magnetising, ind.resistance
     if runs is not None and pwm and through_clamp(drive):
         v_low, when = armature_clamp_bus(drive, lp, runs, top, duty, res.hold.period)
-        return v_low, when, i_hand, HANDOVER_ARMATURE_CLAMP
+        return v_low, when, i_hand, HANDOVER_ARMATURE_SPLIT if split_decay(drive) else HANDOVER_ARMATURE_CLAMP
     if not pwm or through_clamp(drive) or lp.mixed is not None:
         return np.minimum(floor, lp.v_on), t_hand, i_hand, HANDOVER_FLOOR
     if isinstance(ind, FluxCoil):

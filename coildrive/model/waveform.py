@@ -638,14 +638,14 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
         from .armature_boost import boost_params
         p_peak = boost_params(p, s.boost, s.boost_capacitance, s.boost_resistance)
     #: a boosted peak on a drooping main supply: the hold and the release on the main bus
+    split = split_decay(drive)
     main = (params_from_loop(drive.armature, lp, l_factor, drive.coil.eddy_resistance,
                              bus=(s.source_resistance, s.capacitance))
             if s.boosted and s.droops and hold is None else None)
-    if main is not None and drive.freewheel.type == "clamp":   # its off-times draw from the bus
+    if main is not None and drive.freewheel.type == "clamp" and not split:   # its off-times draw from the bus
         main = main.clamped()
     main_bus = None
     fed: list = []   # after a boost on a drooping main supply: the source less the converter's draw, V
-    split = split_decay(drive)
     bridge = full_bridge(drive)   # the hold decays slowly, the release fast into the bus
     fast = p_rel = None
     if split or bridge:
@@ -709,8 +709,10 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
             on_bus = converter_fed(drive, main, float(head.current[-1]), duty, frequency)
             fed.append(float(on_bus.v_on[0]))
             start.append(supply)
+        # (split decay with a clamp on the main bus: the release's path draws from it, the hold's not)
+        rel = p_rel.clamped() if main is not None and split and drive.freewheel.type == "clamp" else p_rel
         rest = simulate(on_bus, schedule[1:], state=head.state, start=np.array(start), live=live,
-                        method=method, points=points, stop=released, release_params=p_rel, t0=peak_time)
+                        method=method, points=points, stop=released, release_params=rel, t0=peak_time)
         bus = None
         if main is not None:   # (with an eddy term _joined keeps the rest's first row: the step)
             bus = np.concatenate([np.full(head.time.size, float(supply)), rest.bus[0 if p.eddy is not None else 1:]])
