@@ -147,18 +147,28 @@ def test_a_drooping_main_supply_stays_refused(tmp_path):
     assert r.stderr.count("\n") == 1
 
 
-def test_firmware_in_the_loop_stays_refused_where_the_comparator_flies_it(designed):
-    """``emulate --firmware``: the compiled driver's comparator is stepped with the seated
-    coil in the loop, so a design whose armature seats in the hold at some corner is
-    refused there in one line (a ValueError naming the current-mode hold, which emulate
-    turns into exit 2 naming hold.mode), before any build is loaded."""
-    from coildrive.bench.firmware_device import FirmwareDevice
+@pytest.mark.compiler
+def test_firmware_in_the_loop_flies_the_armature_under_the_comparator(designed, tmp_path):
+    """The reference C driver (gcc) in the loop at the hottest coil at 9 V, where the
+    armature is still in flight at the threshold: the device flies it as the driver's
+    comparator switches (its crossings found on the flight, bench/firmware_device.py
+    ``_fly_segment``) onto the seat, the seated coil's comparator after; ``check`` passes
+    (lean: one corner; plumbing, the device shares the design's model)."""
+    from driver_harness import checked_rows, loop_captures
+
+    from coildrive.bench.messages import EventKind
     from coildrive.config import load_drive
     from coildrive.design import design
 
-    with pytest.raises(ValueError, match="current-mode hold after the boosted peak") as err:
-        FirmwareDevice(design(load_drive(designed[0])), Path("/nonexistent.so"))
-    assert "\n" not in str(err.value)
+    path, _ = designed
+    d = design(load_drive(path))
+    hot = max(c.coil_temp_c for c in d.corners)
+    (capture, cap), = loop_captures(tmp_path, d, [(d.drive.supply.min, hot, None)], hold_time=0.004)
+    kinds = [int(e.kind) for e in cap.events]
+    assert int(EventKind.FAULT) not in kinds and int(EventKind.PEAK_END) in kinds, kinds
+    rows = checked_rows(capture, path, hot)
+    assert {n for n, i in rows.items() if i["status"] == "pass"} >= {
+        "pull_in_time", "peak_duration", "hold_mean", "release_time"}
 
 
 def test_a_system_channel_stays_refused(tmp_path):
