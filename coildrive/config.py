@@ -1539,8 +1539,8 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     :func:`coildrive.design.boost_armature.loop_pull_in`, an eddy term too: its conversions
     of the terminal current) or a current-mode hold -- its comparator carrying an armature
     still in flight at the threshold (:func:`coildrive.design.boost_armature.threshold_pull_in`,
-    a linear coil on a stiff main supply); with an eddy term or on a drooping main supply
-    where the design finds the armature seated within the peak at every corner
+    a linear coil, an eddy term too); with an eddy term or a bouncing seat on a drooping
+    main supply where the design finds the armature seated within the peak at every corner
     (:func:`coildrive.design.boost_armature.require_seated_in_peak`) --, a bouncing seat (``restitution``;
     an eddy term too: the conversion after the threshold flown, :func:`coildrive.model.armature_boost.window_flight`),
     an on/off cycle (the peak's heat is the run's copper integral, with an eddy term plus its core loss

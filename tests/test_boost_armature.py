@@ -159,7 +159,7 @@ def reference(g: dict, v_b: float, c_b: float, r_b: float, trip: float, duty: fl
         loop, rhs = circuit(g, c_b, r_b, r_e, bus, fast)
         y[3] = bus[2]
     if comparator is not None and "seat" not in out:
-        return comparator_hold(out, t, y, rhs, seat, comparator, t_end, opts)
+        return comparator_hold(out, t, y, rhs, seat, comparator, t_end, opts, loop, r_e is None)
     k = 0
     samples: list[float] = []
     while "seat" not in out and t < t_end:
@@ -189,13 +189,17 @@ def reference(g: dict, v_b: float, c_b: float, r_b: float, trip: float, duty: fl
     return out
 
 
-def comparator_hold(out: dict, t: float, y: list, rhs, seat, comparator, t_end: float, opts: dict) -> dict:
+def comparator_hold(out: dict, t: float, y: list, rhs, seat, comparator, t_end: float, opts: dict,
+                    loop, clip: bool = True) -> dict:
     """:func:`reference`'s current-mode hold from the threshold at ``t`` s, state ``y``: off
     first -- hysteretic until the current falls to the lower threshold (an event), then the
     delay; the fixed off-time for its time -- then on until it rises to the upper threshold
     (an event; at once where it is already there), then the delay, then off again; until
-    the seat (out: ``seat``, ``edges`` the switch's edges before it, ``phase`` the
-    comparator's there: ``"on"``/``"on_delay"``/``"off"``/``"off_timed"``)."""
+    the seat (out: ``seat``, ``bus`` the bus there, ``edges`` the switch's edges before it,
+    ``phase`` the comparator's there: ``"on"``/``"on_delay"``/``"off"``/``"off_timed"``). The
+    current compared is the sensed one, ``loop(mode, y)[1]`` (:func:`circuit`: with an eddy
+    resistance the terminal current in the switch's state; ``clip`` False then: the
+    inductance's current is not held at zero)."""
     from scipy.integrate import solve_ivp
 
     hyst, upper, lower, off_time, delay = comparator
@@ -203,19 +207,20 @@ def comparator_hold(out: dict, t: float, y: list, rhs, seat, comparator, t_end: 
     while t < t_end:
         on = phase in ("on", "on_delay")
         level = upper if phase == "on" else lower if phase == "off" else None
-        if level is not None and (y[0] - level) * (1 if on else -1) >= 0:
+        mode = "on" if on else "off"
+        if level is not None and (loop(mode, y)[1] - level) * (1 if on else -1) >= 0:
             met = True   # already there: the phase ends at once
         else:
-            def cross(_t, z, level=level):
-                return z[0] - level
+            def cross(_t, z, level=level, mode=mode):
+                return loop(mode, z)[1] - level
             cross.terminal, cross.direction = True, (1 if on else -1)
             # (max_step: a crossing and its return inside one step would go unseen)
             sol = solve_ivp(rhs("on" if on else "off", True), (t, min(edge, t_end)), y, max_step=1e-6,
                             events=[seat] + ([cross] if level is not None else []), **opts)
             t, y = float(sol.t[-1]), list(sol.y[:, -1])
-            y[0] = max(y[0], 0.0)
+            y[0] = max(y[0], 0.0) if clip else y[0]
             if sol.t_events[0].size:
-                out.update(seat=t, edges=edges, phase=phase)
+                out.update(seat=t, edges=edges, phase=phase, bus=y[3])
                 return out
             met = level is not None and sol.t_events[1].size > 0 or level is None and t >= edge
         if met:

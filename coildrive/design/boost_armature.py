@@ -38,8 +38,9 @@ Under a closed-loop hold the pull-in run is redone where the armature is still i
 when the peak ends, each hold period's duty the driver's integer PI on the period's
 conversion (:class:`LoopControl`, :func:`loop_pull_in`; with an eddy term the conversion
 reads the terminal current); under a current-mode hold the hold's comparator carries it
-(:func:`threshold_pull_in`: a linear coil on a stiff main supply; with an eddy term or on
-a drooping main supply it needs it seated within the peak, :func:`require_seated_in_peak`).
+(:func:`threshold_pull_in`: a linear coil, an eddy term too; with an eddy term or a bouncing
+seat on a drooping main supply it needs it seated within the peak,
+:func:`require_seated_in_peak`).
 """
 
 from __future__ import annotations
@@ -465,11 +466,13 @@ def threshold_pull_in(drive: Drive, res, comparator):
     (:class:`~coildrive.model.armature_boost.Comparator`: off first, as the seated coil's
     hold, then on to the upper threshold and off to the lower one or for the off-time, each
     edge the comparator's delay after its crossing) until it seats or the runs' window ends
-    (an armature fallen back to the open stop is taken as not seated). A linear coil
-    without an eddy term on a stiff main supply
-    (:func:`coildrive.design.hold_current.in_flight_refused` names the rest). The seat
-    times, the pull-in time and the runs' ``slow`` follow; points seated within the peak
-    keep theirs."""
+    (an armature fallen back to the open stop is taken as not seated). On a drooping main
+    supply the flight runs on the bus as the runs' pull-in does (their ``hold_params``: the
+    converter's draw out of the source, the bus from the source's voltage; the lowest bus
+    stays the runs': a current-mode hold's bus is the hand-over's floor). A linear coil, an
+    eddy term's too (its terminal current compared;
+    :func:`coildrive.design.hold_current.in_flight_refused` names the rest). The seat times, the pull-in time and the runs' ``slow`` follow; points seated
+    within the peak keep theirs."""
     from .boost import threshold
 
     arm = res.armature
@@ -478,8 +481,9 @@ def threshold_pull_in(drive: Drive, res, comparator):
         return res
     p = arm.params.take(late)
     top = np.ravel(np.broadcast_to(np.asarray(res.hold.i_max, float), (len(arm.params),)))[late]
-    got = boosted_pull_in(boosted_params(drive, p, False), p, threshold(drive)[0], 0.0, 1.0, arm.boost.window,
-                          top, rtol=1e-7, orbit=False, comparator=comparator)
+    p_hold = p if arm.boost.hold_params is None else arm.boost.hold_params.take(late)
+    got = boosted_pull_in(boosted_params(drive, p, False), p_hold, threshold(drive)[0], 0.0, 1.0, arm.boost.window,
+                          top, rtol=1e-7, bus0=p.v_on if p.droops else None, orbit=False, comparator=comparator)
     return _merged(res, late, got)
 
 

@@ -37,8 +37,9 @@ to it), then replaces everything the hold decides with the current-mode model of
   an eddy-current term too (the run's eddy branch, the thresholds on the seated coil's
   sensed current, the hold's force from the magnetising current's RMS); after a boosted
   peak the comparator carries an armature still in flight at the threshold on to the seat
-  (a linear coil on a stiff main supply); with an eddy term or on a drooping main supply
-  only where the armature seats within the peak at every corner (else refused in one line
+  (a linear coil, an eddy term too; on a drooping main supply without either an eddy term or
+  a bouncing seat); with an eddy term or a bouncing seat on a drooping main supply only
+  where the armature seats within the peak at every corner (else refused in one line
   naming ``hold.mode``).
 
 In the design JSON ``hold.frequency_hz`` is the switching frequency at the nominal
@@ -411,12 +412,15 @@ def comparator(th: Thresholds):
 def in_flight_refused(drive: Drive) -> str | None:
     """Why a current-mode hold after a boosted peak cannot carry an armature still in
     flight at the threshold (the comparator's flight,
-    :func:`~coildrive.design.boost_armature.threshold_pull_in`, is a linear coil's on a
-    stiff main supply), in words; ``None`` where it can."""
-    if drive.coil.eddy_resistance:
-        return "an eddy-current term"
-    if drive.supply.droops:
-        return "a drooping main supply"
+    :func:`~coildrive.design.boost_armature.threshold_pull_in`, is a linear coil's, an eddy
+    term's too; on a drooping main supply neither with an eddy term, whose terminal
+    current's steps the bus floor's top does not take, nor with a bouncing seat, whose
+    rebound's motional term would lift the current past it in the comparator's delay), in
+    words; ``None`` where it can."""
+    if drive.coil.eddy_resistance and drive.supply.droops:
+        return "an eddy-current term on a drooping main supply"
+    if drive.supply.droops and drive.armature.restitution > 0:
+        return "a bouncing seat (armature.restitution) on a drooping main supply"
     return None
 
 
@@ -506,8 +510,8 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     """The Design of a current-mode drive (see the module docstring). After a boosted peak
     with an ``[armature]``: where the armature is still in flight at the threshold the
     comparator carries it on (:func:`~coildrive.design.boost_armature.threshold_pull_in`);
-    with an eddy-current term or on a drooping main supply only where it seats within the
-    peak at every corner (:func:`~coildrive.design.boost_armature.require_seated_in_peak`,
+    with an eddy-current term or a bouncing seat on a drooping main supply only where it
+    seats within the peak at every corner (:func:`~coildrive.design.boost_armature.require_seated_in_peak`,
     else one line naming ``hold.mode``)."""
     if samples > 0:
         raise InputError("--samples", "", "the Monte Carlo covers the voltage-mode hold only "
@@ -530,7 +534,7 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
             from .boost_armature import require_seated_in_peak
             require_seated_in_peak(drive, grid.label, first.armature.pull_in, "hold.mode",
                                    f"a current-mode hold with {why}", "its comparator's flight with "
-                                   "the armature moving is a linear coil's on a stiff main supply",
+                                   "the armature moving takes neither on a drooping bus",
                                    "a voltage-mode hold (or the closed loop, which carries it)")
         pk = plan_peak(drive, grid, first)
         # the longest real peak: the ticks and the driver's switch lead
@@ -1093,7 +1097,7 @@ def _armature_actuation(drive: Drive, th: Thresholds, supply: float, coil_temp: 
     (:func:`threshold_hold`; with an eddy-current term the seated branch behind ``R_e``,
     the thresholds on its terminal current:
     :func:`coildrive.model.eddy_waveform.seated_hold`), the release run until the armature
-    is back on the open stop. After a boosted peak (a linear coil on a stiff main supply)
+    is back on the open stop. After a boosted peak (a linear coil, :func:`in_flight_refused`)
     the comparator carries an armature still in flight at the threshold onto the seat
     first (:func:`comparator`). Where the armature is not seated at the end of the peak
     otherwise, or the hold's (magnetising) current falls below the stay current, the hold
@@ -1108,7 +1112,7 @@ def _armature_actuation(drive: Drive, th: Thresholds, supply: float, coil_temp: 
 
             one = np.ones(1)
             lp = Loop(v * one, r_on * one, r_off * one, v_off * one, seated, one, v * one)
-            ts, cur, mag, ons, t, m, t_last = seated_hold(lp, t0, i0, t0 + hold_time, th.control, th.lower_a,
+            ts, cur, mag, ons, t, m, t_last = seated_hold(lp, t0, i0, peak_time + hold_time, th.control, th.lower_a,
                                                           th.upper_a, th.off_time_s, th.delay_s, points)
             return ts, cur, ons, t, m, min(i0, float(np.min(mag, initial=i0))), t_last, mag
         ts, cs, ons = [], [], []   # (the hold ends hold_time after the peak, as the firmware's)

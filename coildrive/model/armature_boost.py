@@ -25,7 +25,7 @@ by period (a closed loop: ``control``) flies the same edges with each period's d
 current at the period's conversion (the flight's state there; with an eddy term the
 terminal current of the segment it falls in, what the sense carries).
 
-A current-mode hold (``comparator``, :class:`Comparator`; a stiff main supply) flies the
+A current-mode hold (``comparator``, :class:`Comparator`) flies the
 same way from comparator edge to comparator edge: each on-time ends the comparator's delay
 after the current rises to the upper threshold, each off-time the delay after it falls to
 the lower one (hysteretic) or after the fixed off-time -- the thresholds events on the
@@ -160,12 +160,13 @@ def boosted_pull_in(p_boost: ArmatureParams, p_hold: ArmatureParams, trip, duty,
     each off-time fast for its ``fraction`` first (module docstring); ``None``: the hold's
     off path throughout.
 
-    ``comparator``: a current-mode hold (:class:`Comparator`; a stiff main supply) switches
-    the flights after the threshold by its thresholds instead of ``duty`` (module
-    docstring); an armature fallen back to the open stop under it is taken as not seated.
+    ``comparator``: a current-mode hold (:class:`Comparator`; on a drooping main supply the
+    bus a state of its flights too) switches the flights after the threshold by its
+    thresholds instead of ``duty`` (module docstring); an armature fallen back to the open
+    stop under it is taken as not seated.
     """
-    if (mixed is not None or comparator is not None) and p_hold.droops:
-        raise ValueError("a mixed-decay or a current-mode hold's flights take a stiff main supply")
+    if mixed is not None and p_hold.droops:
+        raise ValueError("a mixed-decay hold's flights take a stiff main supply")
     n = len(p_hold)
     pin = pull_in(p_boost, trip=trip, rtol=rtol)
     out = {k: np.array(getattr(pin, k), copy=True) for k in
@@ -272,7 +273,9 @@ class Comparator:
     off -- hysteretic, until the current falls to ``lower`` A and ``delay`` s more; the
     fixed off-time, for ``off_time`` s -- then on until it rises to ``upper`` A and
     ``delay`` s more (on for the delay alone where it is already at or above it), then off
-    again. ``delay``: the comparator's (``hold.sense_delay``)."""
+    again. ``delay``: the comparator's (``hold.sense_delay``). The current compared is
+    the sensed one: with an eddy term the terminal current, which steps at each switch edge
+    (``i_on``, ``i_off`` below: what it is with the switch on and off)."""
 
     hysteretic: bool
     upper: float
@@ -280,24 +283,26 @@ class Comparator:
     off_time: float
     delay: float
 
-    def start(self, t, i) -> tuple[np.ndarray, np.ndarray]:
-        """``(phase, edge s)`` per point at the hand-over at ``t`` s with the current ``i`` A."""
+    def start(self, t, i_on, i_off) -> tuple[np.ndarray, np.ndarray]:
+        """``(phase, edge s)`` per point at the hand-over at ``t`` s, the sensed current
+        ``i_on`` A with the switch on, ``i_off`` A with it off."""
         phase = np.full(np.shape(t), OFF_TIMED if not self.hysteretic else OFF_WAIT)
         edge = np.where(phase == OFF_TIMED, t + self.off_time, np.inf)
-        return self.settle(np.ones(np.shape(t), bool), phase, edge, t, i)
+        return self.settle(np.ones(np.shape(t), bool), phase, edge, t, i_on, i_off)
 
-    def turn(self, turn, phase, edge, t, i) -> tuple[np.ndarray, np.ndarray]:
+    def turn(self, turn, phase, edge, t, i_on, i_off) -> tuple[np.ndarray, np.ndarray]:
         """``(phase, edge)`` after the points ``turn`` reached their phase's end at ``t`` s
-        with the current ``i`` A (an edge's time or the threshold's event)."""
+        (an edge's time or the threshold's event), the sensed current ``i_on``/``i_off`` A."""
         phase, edge = self._next(turn, phase, edge, t)
-        return self.settle(turn, phase, edge, t, i)
+        return self.settle(turn, phase, edge, t, i_on, i_off)
 
-    def settle(self, pending, phase, edge, t, i) -> tuple[np.ndarray, np.ndarray]:
+    def settle(self, pending, phase, edge, t, i_on, i_off) -> tuple[np.ndarray, np.ndarray]:
         """The phases just entered at ``t`` s (``pending``) that end at once passed on: a
-        threshold already met (on with the current at or above ``upper``, off with it at or
-        below ``lower``) or a timed phase of no length (no delay)."""
+        threshold already met (on with the sensed current ``i_on`` at or above ``upper``, off
+        with ``i_off`` at or below ``lower``) or a timed phase of no length (no delay)."""
         for _ in range(4):
-            pending = pending & (((phase == ON_WAIT) & (i >= self.upper)) | ((phase == OFF_WAIT) & (i <= self.lower))
+            pending = pending & (((phase == ON_WAIT) & (i_on >= self.upper))
+                                 | ((phase == OFF_WAIT) & (i_off <= self.lower))
                                  | (((phase == ON_DELAY) | (phase == OFF_TIMED)) & (edge <= t)))
             if not pending.any():
                 break
@@ -324,10 +329,22 @@ class Comparator:
                 phase == OFF_WAIT)
 
 
+def _sensed(p: ArmatureParams, y, live) -> tuple[np.ndarray, np.ndarray]:
+    """``(A with the switch on, A off)``: the sensed current of the states ``y`` (rows of a
+    flight) -- with an eddy term the terminal current in each switch state (0 off where the
+    freewheel has blocked, not ``live``), on a drooping bus from the bus there; else the
+    coil's current."""
+    i = p.current(y[0], y[1])
+    if p.eddy is None:
+        return i, i
+    bus = y[5] if p.droops else None
+    return p.terminal(i, True, bus=bus), np.where(live, p.terminal(i, False, bus=bus), 0.0)
+
+
 def comparator_schedule(p: ArmatureParams, t0: float, y0, comparator: Comparator, until: float,
                         rtol: float = 1e-7) -> list:
     """The switch's segments ``(t_end s, on)`` of a current-mode hold from the threshold at
-    ``t0`` s (one point ``p``, a linear coil on a stiff main supply; ``y0``: lambda, x, v, q,
+    ``t0`` s (one point ``p``, a linear coil on a stiff bus: simulate's hold; ``y0``: lambda, x, v, q,
     sq there, the armature not yet seated) to the first turn-off after the seat: the
     comparator's flight (:func:`_hold_flights`) to the seat, then the seated coil's closed
     form to the end of that on-time (its delay after the upper threshold), where the seated
@@ -343,21 +360,29 @@ def comparator_schedule(p: ArmatureParams, t0: float, y0, comparator: Comparator
         raise ValueError("the current-mode hold does not carry the armature onto the seat within the "
                          f"window ({until:.4g} s)")
     t_seat = float(got["seat_time"][0])
-    out, on = [], bool(Comparator.on(comparator.start(np.array([t0]), p.current(y0[0], y0[1]))[0])[0])
+    y_col = np.asarray(y0, float).reshape(-1, 1)
+    out, on = [], bool(Comparator.on(comparator.start(np.array([t0]), *_sensed(p, y_col, np.ones(1, bool)))[0])[0])
     for t, switched, now in log:
         if switched[0] and t[0] <= t_seat:
             out.append((float(t[0]), on))
             on = bool(now[0])
     t, i, phase, edge = t_seat, float(got["seat_current"][0]), int(got["phase"][0]), float(got["phase_edge"][0])
-    v, r_on, r_off, v_off, ind = (float(a[0]) for a in (p.v_on, p.r_on, p.r_off, p.v_off, p.l_closed))
+    v, r_on, r_off, v_off = (float(a[0]) for a in (p.v_on, p.r_on, p.r_off, p.v_off))
+    ind = p.take([0]).coil_closed   # (with an eddy term the seated EddyCoil: magnetising currents)
     cmp = comparator
+    # the thresholds on the sensed current as the magnetising current's (an eddy term's
+    # terminal current with the switch on, and off)
+    upper, lower = cmp.upper, cmp.lower
+    if p.eddy is not None:
+        r_e = float(p.eddy[0])
+        upper, lower = ((r_on + r_e) * upper - v) / r_e, ((r_off + r_e) * lower + v_off) / r_e
     if phase in (OFF_WAIT, OFF_TIMED):   # the rest of the off-time, then on to the upper threshold
-        t1 = edge if phase == OFF_TIMED else t + float(decay_time(cmp.lower, i, r_off, v_off, ind)) + cmp.delay
-        i = float(decay_current(t1 - t, i, r_off, v_off, ind))
+        t1 = edge if phase == OFF_TIMED else t + float(np.ravel(decay_time(lower, i, r_off, v_off, ind))[0]) + cmp.delay
+        i = float(np.ravel(decay_current(t1 - t, i, r_off, v_off, ind))[0])
         out.append((t1, False))
         t, phase, edge = t1, ON_WAIT, math.inf
     if phase == ON_WAIT:
-        rise = float(rise_time(cmp.upper, i, v, r_on, ind))
+        rise = float(np.ravel(rise_time(upper, i, v, r_on, ind))[0])
         if not math.isfinite(rise):
             raise ValueError("the seated coil does not reach the current-mode hold's upper threshold")
         edge = t + rise + cmp.delay
@@ -434,7 +459,7 @@ def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: f
     cycle = np.zeros(n)                 # the start of the current PWM period, s after t0
     edge = np.minimum(t + t_on, bound)
     if comparator is not None:   # off from the hand-over, as the seated coil's hold
-        phase, cedge = comparator.start(t, p.current(y[0], y[1]))
+        phase, cedge = comparator.start(t, *_sensed(p, y, live))
         on = Comparator.on(phase)
         edge = np.minimum(cedge, bound)
         res["phase"], res["phase_edge"] = np.zeros(n, int), nan.copy()
@@ -498,7 +523,7 @@ def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: f
         turn = at_edge & ~over
         if comparator is not None:   # its phase's edge or its threshold reached: the next phase
             turn = (turn | (fl.end == TRIP)) & active
-            phase, cedge = comparator.turn(turn, phase, cedge, t, p.current(y[0], y[1]))
+            phase, cedge = comparator.turn(turn, phase, cedge, t, *_sensed(p, y, live))
             was, on = on, Comparator.on(phase)
             if log is not None:
                 log.append((t.copy(), turn & (on != was), on.copy()))

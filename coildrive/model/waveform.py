@@ -618,7 +618,7 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     armature seated at the end of the peak and the hold's (magnetising) current never
     below the stay current (else ``ValueError``: a hold switched by thresholds with the
     armature in flight is not modelled), and takes no mixed decay -- except after a boosted
-    peak on a stiff main supply (a linear coil) with its ``comparator`` given
+    peak (a linear coil; the hold on the stiff bus, as the seated coil's) with its ``comparator`` given
     (:class:`~coildrive.model.armature_boost.Comparator`): there the comparator's switching
     carries the armature still in flight at the threshold on to the seat
     (:func:`~coildrive.model.armature_boost.comparator_schedule`, the run through its edges),
@@ -732,7 +732,7 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
         head = simulate(p_peak, schedule[:1], method=method, points=points)
         t_hand = peak_time   # where the seated coil's hold starts
         if (comparator is not None and hold is not None and head.state != "seated" and main is None
-                and s.boosted and p.eddy is None and p.curves is None):
+                and s.boosted and p.curves is None):
             # the comparator carries the armature in flight onto the seat, to a turn-off
             from .armature_boost import comparator_schedule
             start = np.array([head.flux[-1], head.position[-1], head.velocity[-1], head.charge[-1],
