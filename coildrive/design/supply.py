@@ -304,13 +304,17 @@ def handover_bus(drive: Drive, res, duty, first_duty=None) -> tuple[np.ndarray, 
     top = np.maximum(i_hand, res.hold.i_max if top is None else np.maximum(top, res.hold.i_max))
     top = np.where(np.isfinite(top), top, i_hand)
     if runs is not None and drive.hold.mode == "current":
-        # the comparator carrying an armature in flight (no bounce): each on-time ends the
-        # sense delay after the upper threshold (or after its start where the current is
+        # where the comparator carries an armature in flight (no bounce): each on-time ends
+        # the sense delay after the upper threshold (or after its start where the current is
         # above it, at most the hand-over's), the current rising over that delay at most as
         # the open coil's from the bus's V_s (L(x) >= L_open; a closing armature's motional
         # term only holds it back)
-        l_open = _shaped(res.armature.params.l_open, np.shape(lp.v_on))
-        top = top + lp.v_on * drive.hold.sense_delay / l_open
+        from ..model.armature_boost import seated_in_peak
+
+        shape = np.shape(lp.v_on)
+        flies = ~seated_in_peak(runs.slow).reshape(shape)
+        l_open = _shaped(res.armature.params.l_open, shape)
+        top = top + np.where(flies, lp.v_on * drive.hold.sense_delay / l_open, 0.0)
     pwm = _pwm_hold(drive)
     if runs is None and (pwm or first_duty is not None):
         top = np.maximum(top, _first_on_top(drive, lp, np.where(known, i_m, i_hand),
