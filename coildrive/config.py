@@ -1519,8 +1519,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     :func:`coildrive.model.bus_decay.eddy_decay_drawn_no_sink`), or on a curve on a supply
     that sinks; with a moving armature, a linear coil (an eddy
     term too), the hold's flight on it -- with a clamp across the switch,
-    whose off-times draw from the bus, without split decay
-    (:meth:`coildrive.model.armature.ArmatureParams.clamped`); on a full bridge its release
+    whose off-times draw from the bus
+    (:meth:`coildrive.model.armature.ArmatureParams.clamped`), or with split decay only its
+    release (:func:`coildrive.design.boost_armature.clamp_draws`); on a full bridge its release
     into the bus with the converter idle or drawing,
     :func:`coildrive.model.armature_bus_release.release_over`, a slow-decay hold), a PWM
     hold from the main supply (voltage mode, fixed, supply table or closed loop; or current
@@ -1531,9 +1532,11 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
     the flights after the threshold taking each off-time's fast part through the body
     diodes; or the closed loop, which carries an armature in flight with its own PI:
     :func:`coildrive.design.boost_armature.loop_pull_in`, an eddy term too: its conversions
-    of the terminal current) or a current-mode hold -- that one where the design finds the
-    armature seated within the peak at every corner
-    (:func:`coildrive.design.boost_armature.require_seated_in_peak`), a bouncing seat (``restitution``;
+    of the terminal current) or a current-mode hold -- its comparator carrying an armature
+    still in flight at the threshold (:func:`coildrive.design.boost_armature.threshold_pull_in`,
+    a linear coil, an eddy term too); with an eddy term or a bouncing seat on a drooping
+    main supply where the design finds the armature seated within the peak at every corner
+    (:func:`coildrive.design.boost_armature.require_seated_in_peak`) --, a bouncing seat (``restitution``;
     an eddy term too: the conversion after the threshold flown, :func:`coildrive.model.armature_boost.window_flight`),
     an on/off cycle (the peak's heat is the run's copper integral, with an eddy term plus its core loss
     bounded by the first law: :func:`coildrive.design.boost_armature.peak_heat`).
@@ -1565,10 +1568,6 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
         key, why = refused
     elif hold.mode == "latch" and (refused := _boosted_latch_refusal(coil, switch, supply, armature, latch)):
         key, why = refused
-    elif armature is not None and supply.droops and freewheel.type == "clamp" and freewheel.split_decay:
-        key, why = "freewheel.split_decay", ("a drooping main supply, a moving armature and a clamp bypassed "
-                                             "in the hold (split decay: the clamp's draw from the bus while "
-                                             "the armature may be in flight is modelled in the hold's off-times)")
     elif armature is not None and supply.droops and hold.fast_fraction > 0:
         key, why = "hold.fast_fraction", ("a moving armature, a full bridge's mixed-decay hold and a drooping main "
                                           "supply together (the hold's fast parts into the bus with the boost "
@@ -1590,7 +1589,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "term on a linear coil, or on a curve on a supply that sinks; with [armature] a "
                          "linear coil, an eddy term too (or its open and seated flux-linkage curves from a "
                          "boost capacitor or an ideal boost on one switch, a diode/zener/resistor freewheel, a "
-                         "voltage-mode fixed or supply-table hold), a clamp without split decay, on a full bridge a "
+                         "voltage-mode fixed or supply-table hold), a clamp (split decay too), on a full bridge a "
                          "slow-decay hold), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; a "
                          "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, or on a "

@@ -35,6 +35,8 @@ Units: SI (s, A, V, V*s, m, m/s).
 
 from __future__ import annotations
 
+import copy
+
 import numpy as np
 
 from ..model.armature import params_from_loop
@@ -146,6 +148,7 @@ class BoostFlight:
         A at device times in the stretch."""
         if t1 <= t0:
             i, m = self.current, self.coil_current
+            self._samples = (np.array([t0]), np.array([i]))
             return (lambda x: np.full(np.shape(x), i)), (lambda x: np.full(np.shape(x), m))
         times, amps, coils = [np.array([t0])], [np.array([self.current])], [np.array([self.coil_current])]
         if not boost and self.hand_over is None:
@@ -173,7 +176,35 @@ class BoostFlight:
             amps.append(i)
             coils.append(m)
         t, i, m = np.concatenate(times), np.concatenate(amps), np.concatenate(coils)
+        self._samples = (t, i)
         return (lambda x: np.interp(np.asarray(x, float), t, i)), (lambda x: np.interp(np.asarray(x, float), t, m))
+
+    def crossing(self, level: float, rising: bool) -> float | None:
+        """s: where the last :meth:`run`'s terminal current first reaches ``level`` A
+        (``rising``: from below, else from above; its start where it is already there), by
+        linear interpolation between its samples; ``None`` where it does not."""
+        t, i = self._samples
+        d = (i - level) if rising else (level - i)
+        k = np.flatnonzero(d >= 0.0)
+        if k.size == 0:
+            return None
+        k = int(k[0])
+        if k == 0:
+            return float(t[0])
+        return float(t[k - 1] + (t[k] - t[k - 1]) * -d[k - 1] / (d[k] - d[k - 1]))
+
+    def snapshot(self) -> dict:
+        """The flight's state, for :meth:`restore` (a stretch flown too far: a comparator's
+        crossing inside it)."""
+        out = copy.copy(self.__dict__)
+        out["y"] = None if self.y is None else self.y.copy()
+        out["flown"] = list(self.flown)
+        return out
+
+    def restore(self, saved: dict) -> None:
+        """Back to a :meth:`snapshot`."""
+        self.__dict__.update(saved)
+        self.flown = list(saved["flown"])
 
     def settle(self, enabled: bool) -> bool:
         """End the flight where it is over: the armature resting on the seat, or (the driver

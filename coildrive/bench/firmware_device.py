@@ -834,9 +834,6 @@ class FirmwareDevice(LineOutput):
         ``k`` amps-per-code, the design's convention) and the off-time one-shot's expiry
         (its counts at the design's off-time prescaler on the timer clock). ``start``: the
         period's rest from there (s; its conversion done), ``pieces`` what came before."""
-        if self._arm is not None and self._arm.active:
-            raise RuntimeError("the armature is still in flight when the current-mode hold starts: a hold "
-                               "switched by thresholds with the armature moving is not modelled")
         T = self.pwm_period
         end, conv = t0 + T, t0 + 0.5 * T
         self._flight_t0 = None     # switched by thresholds: the seated coil (any pull-in run is over)
@@ -881,7 +878,10 @@ class FirmwareDevice(LineOutput):
             armed = int(self.lib.fil_threshold())
             if self._spent is not None and self._spent != (on, armed):
                 self._spent = None         # a new segment or a new arming: the comparator can trip again
-            if self._trip is None and self._spent is None and armed >> 31:
+            flying = self._arm is not None and self._arm.active   # (a boosted armature still in flight)
+            if flying:
+                self._trip = None          # (found on the flight itself: _fly_segment)
+            elif self._trip is None and self._spent is None and armed >> 31:
                 lo, hi = (armed & 0xFFFF) * self._apc, (armed >> 16 & 0x7FFF) * self._apc
                 # the thresholds compare the sensed current: with an eddy term the
                 # magnetising current where the conducting loop's terminal current is there
@@ -903,9 +903,13 @@ class FirmwareDevice(LineOutput):
             if self._off_expiry is not None:
                 times.append((max(self._off_expiry, t), "expiry"))
             te, what = min(times, key=lambda x: x[0])
+            if flying:
+                te, what, coil, seg = self._fly_segment(t, te, what, on, path, armed)
             self._run_samples(t, te, seg)
             pieces.append((t, te, coil))
             i, t = float(coil(te)), te
+            if flying and self._arm.settle(on):   # seated: the seated coil's closed form from here
+                i = self._arm.coil_current
             if what == "end":
                 break
             if what == "tick":
@@ -948,6 +952,35 @@ class FirmwareDevice(LineOutput):
         self._t = end
         self._take_frames()
         return T
+
+    def _fly_segment(self, t: float, te: float, what: str, on: bool, path: str, armed: int):
+        """A current-mode hold's segment from ``t`` s with the boosted armature still in flight
+        (:mod:`.boost_flight`, the design's model): flown to ``te`` s (the next scheduled
+        event, ``what``) with the switch ``on`` and the off ``path``; where the armed
+        comparator's threshold is crossed on the way -- the sensed current rising to the high
+        code's current switched on, falling to the low code's off (hysteretic) -- the segment
+        ends ``hold.sense_delay`` after the crossing with a trip instead (the flight redone to
+        there; the crossing between the flight's samples by linear interpolation). Returns
+        ``(te, what, coil(x), sensed(x))``."""
+        fl, th = self._arm, self._cm
+        level = None
+        if self._spent is None and armed >> 31:
+            lo, hi = (armed & 0xFFFF) * self._apc, (armed >> 16 & 0x7FFF) * self._apc
+            level = hi if on else lo if th.control == "hysteretic" else None
+        saved = fl.snapshot()
+        flown, coil = fl.run(t, te, te if on else t, False, path)
+        if level is not None:
+            tc = fl.crossing(level, on)
+            if tc is not None and tc + th.delay_s < te:
+                fl.restore(saved)
+                te, what = tc + th.delay_s, "trip"
+                self._trip = (te, on)
+                flown, coil = fl.run(t, te, te if on else t, False, path)
+
+        def sensed(x, flown=flown):
+            c = flown(x)
+            return np.zeros_like(c) if not on and self.sense_in_switch else c
+        return te, what, coil, sensed
 
     def _cm_segment(self) -> tuple[bool, str]:
         """A current-mode hold's segment as the driver's outputs set it: ``(switch on, the

@@ -37,8 +37,10 @@ gets there, the highest trip current -- then the hold on the bus).
 Under a closed-loop hold the pull-in run is redone where the armature is still in flight
 when the peak ends, each hold period's duty the driver's integer PI on the period's
 conversion (:class:`LoopControl`, :func:`loop_pull_in`; with an eddy term the conversion
-reads the terminal current); a current-mode hold needs it seated within the peak
-(:func:`require_seated_in_peak`).
+reads the terminal current); under a current-mode hold the hold's comparator carries it
+(:func:`threshold_pull_in`: a linear coil, an eddy term too; with an eddy term or a bouncing
+seat on a drooping main supply it needs it seated within the peak,
+:func:`require_seated_in_peak`).
 """
 
 from __future__ import annotations
@@ -53,7 +55,7 @@ from ..model.armature import ArmatureParams, params_from_loop
 from ..model.armature_boost import (boost_energy, boost_params, boosted_pull_in, curve_window, seated_in_peak,
                                     window_flight)
 from ..model.armature_runs import PullInBatch, pull_in
-from ..model.circuit import Loop
+from ..model.circuit import Loop, split_decay
 from ..model.rl import rise_current
 from .timer import conversion_period
 
@@ -232,9 +234,10 @@ def pwm_on_bus(drive: Drive) -> bool:
 def clamp_draws(drive: Drive, p: ArmatureParams) -> ArmatureParams:
     """``p`` (points on the drooping main bus, ``v_on`` the source's voltage) with the hold's
     off-times through a clamp across the switch drawing from the bus
-    (:meth:`~coildrive.model.armature.ArmatureParams.clamped`) where the drive has one; else
-    ``p``."""
-    return p.clamped() if p.droops and drive.freewheel.type == "clamp" else p
+    (:meth:`~coildrive.model.armature.ArmatureParams.clamped`) where the drive has one and
+    no split decay bypasses it in the hold (then only the release draws through it: after
+    the seat, under :func:`coildrive.design.supply.armature_clamp_bus`'s floor); else ``p``."""
+    return p.clamped() if p.droops and drive.freewheel.type == "clamp" and not split_decay(drive) else p
 
 
 def main_bus(drive: Drive, p: ArmatureParams, i_top) -> tuple[ArmatureParams, np.ndarray]:
@@ -436,8 +439,7 @@ def loop_pull_in(drive: Drive, res, loop, counts: int, reading, switch_leg: bool
 
     arm = res.armature
     runs_ = arm.boost
-    pin = runs_.slow
-    late = np.flatnonzero(~seated_in_peak(pin) & np.isfinite(pin.trip_time))
+    late = _late(arm)
     if late.size == 0:
         return res
     b = drive.board
@@ -455,6 +457,50 @@ def loop_pull_in(drive: Drive, res, loop, counts: int, reading, switch_leg: bool
     got = boosted_pull_in(boosted_params(drive, p, False), p_hold, i_th, control.first(code), period,
                           runs_.window, rtol=1e-7, bus0=p.v_on if p.droops else None, orbit=False,
                           control=control, mixed=None if mixed is None else mixed.at(late))
+    return _merged(res, late, got)
+
+
+def threshold_pull_in(drive: Drive, res, comparator):
+    """``res`` (evaluated points with their boosted runs under a current-mode hold) with the
+    pull-in run redone where the armature is not yet seated when the peak ends: from the
+    threshold the hold's ``comparator`` switches it
+    (:class:`~coildrive.model.armature_boost.Comparator`: off first, as the seated coil's
+    hold, then on to the upper threshold and off to the lower one or for the off-time, each
+    edge the comparator's delay after its crossing) until it seats or the runs' window ends
+    (an armature fallen back to the open stop is taken as not seated). On a drooping main
+    supply the flight runs on the bus as the runs' pull-in does (their ``hold_params``: the
+    converter's draw out of the source, the bus from the source's voltage; the lowest bus
+    stays the runs': a current-mode hold's bus is the hand-over's floor). A linear coil, an
+    eddy term's too (its terminal current compared;
+    :func:`coildrive.design.hold_current.in_flight_refused` names the rest). The seat times, the pull-in time and the runs' ``slow`` follow; points seated
+    within the peak keep theirs."""
+    from .boost import threshold
+
+    arm = res.armature
+    late = _late(arm)
+    if late.size == 0:
+        return res
+    p = arm.params.take(late)
+    top = np.ravel(np.broadcast_to(np.asarray(res.hold.i_max, float), (len(arm.params),)))[late]
+    p_hold = p if arm.boost.hold_params is None else arm.boost.hold_params.take(late)
+    got = boosted_pull_in(boosted_params(drive, p, False), p_hold, threshold(drive)[0], 0.0, 1.0, arm.boost.window,
+                          top, rtol=1e-7, bus0=p.v_on if p.droops else None, orbit=False, comparator=comparator)
+    return _merged(res, late, got)
+
+
+def _late(arm) -> np.ndarray:
+    """The points whose boosted pull-in run (``arm.boost.slow``) reached the threshold with
+    the armature not yet seated."""
+    pin = arm.boost.slow
+    return np.flatnonzero(~seated_in_peak(pin) & np.isfinite(pin.trip_time))
+
+
+def _merged(res, late, got):
+    """``res`` with its runs' pull-in (``slow``) taken from ``got`` at the points ``late``
+    (a run redone under the hold's own switching), the armature's pull-in and the pull-in
+    time with it."""
+    arm = res.armature
+    pin = arm.boost.slow
     fields = ("status", "seat_time", "seat_current", "impact_time", "impact_speed", "dip_current",
               "dip_time", "stall_gap", "bound", "bounces", "steps")
     merged = {}
@@ -463,5 +509,5 @@ def loop_pull_in(drive: Drive, res, loop, counts: int, reading, switch_leg: bool
         value[late] = getattr(got, name)
         merged[name] = value
     slow = replace(pin, **merged)
-    arm = replace(arm, boost=replace(runs_, slow=slow), pull_in=slow)
+    arm = replace(arm, boost=replace(arm.boost, slow=slow), pull_in=slow)
     return replace(res, armature=arm, pull_in_time=slow.seat_time.reshape(np.shape(res.pull_in_time)))

@@ -36,8 +36,11 @@ to it), then replaces everything the hold decides with the current-mode model of
   the seated coil, the release from the band's top until the armature is back open; with
   an eddy-current term too (the run's eddy branch, the thresholds on the seated coil's
   sensed current, the hold's force from the magnetising current's RMS); after a boosted
-  peak, with or without one, only where the armature seats within the peak at every
-  corner (else refused in one line naming ``hold.mode``).
+  peak the comparator carries an armature still in flight at the threshold on to the seat
+  (a linear coil, an eddy term too; on a drooping main supply without either an eddy term or
+  a bouncing seat); with an eddy term or a bouncing seat on a drooping main supply only
+  where the armature seats within the peak at every corner (else refused in one line
+  naming ``hold.mode``).
 
 In the design JSON ``hold.frequency_hz`` is the switching frequency at the nominal
 point, ``hold.duty`` the largest switch-on fraction over the corners (1 where the
@@ -379,9 +382,8 @@ def evaluate_current(drive: Drive, th: Thresholds, supply, ambient, r_factor, l_
         # the peak with the moving armature, the hold's switching cycle on the seated coil
         # (lp.inductance is inductance_closed) for its force, the release from the top of
         # the band until the armature is back on the open stop
-        # (a boosted peak: the hold after the threshold is flown only where the armature is
-        # not yet seated there, which the design refuses -- :func:`design`; duty 0 keeps
-        # that flight finite)
+        # (a boosted peak: duty 0 keeps the runs' PWM flight finite; where the armature is
+        # not yet seated at the threshold the comparator's flight replaces it below)
         arm, t_pull, i_peak, t_drop, t_zero, energy, i_fast = moving_armature(
             drive, lp, lp_rel, l_factor, ss, peak_time, None, np.shape(supply), i_fast, 0.0)
     interrupt, v_sw = switch_voltage_peak(drive, lp, lp_rel, i_peak, ss.i_max, i_fast)
@@ -390,7 +392,36 @@ def evaluate_current(drive: Drive, th: Thresholds, supply, ambient, r_factor, l_
                        hold=ss, coil_power=power, release_time=t_drop, release_zero_time=t_zero,
                        release_energy=energy, interrupt_current=interrupt,
                        peak_switch_voltage=v_sw, armature=arm, release_loop=lp_rel)
+    if arm is not None and drive.supply.boosted and not in_flight_refused(drive):
+        # the armature still in flight at the threshold: the hold's comparator carries it on
+        from .boost_armature import threshold_pull_in
+        res = threshold_pull_in(drive, res, comparator(th))
     return res, cm
+
+
+def comparator(th: Thresholds):
+    """The thresholds ``th`` as the model's comparator
+    (:class:`~coildrive.model.armature_boost.Comparator`): an armature in flight after a
+    boosted peak."""
+    from ..model.armature_boost import Comparator
+
+    hyst = th.control == "hysteretic"
+    return Comparator(hyst, th.upper_a, th.lower_a if hyst else 0.0, 0.0 if hyst else th.off_time_s, th.delay_s)
+
+
+def in_flight_refused(drive: Drive) -> str | None:
+    """Why a current-mode hold after a boosted peak cannot carry an armature still in
+    flight at the threshold (the comparator's flight,
+    :func:`~coildrive.design.boost_armature.threshold_pull_in`, is a linear coil's, an eddy
+    term's too; on a drooping main supply neither with an eddy term, whose terminal
+    current's steps the bus floor's top does not take, nor with a bouncing seat, whose
+    rebound's motional term would lift the current past it in the comparator's delay), in
+    words; ``None`` where it can."""
+    if drive.coil.eddy_resistance and drive.supply.droops:
+        return "an eddy-current term on a drooping main supply"
+    if drive.supply.droops and drive.armature.restitution > 0:
+        return "a bouncing seat (armature.restitution) on a drooping main supply"
+    return None
 
 
 def fast_pulses(drive: Drive, th: Thresholds, lp, cm: CurrentModeSteadyState) -> tuple:
@@ -477,8 +508,10 @@ def _split_result(drive: Drive, fallback, cm: CurrentModeSteadyState):
 # --------------------------------------------------------------------------- design
 def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
     """The Design of a current-mode drive (see the module docstring). After a boosted peak
-    with an ``[armature]`` (an eddy-current term too) only where the armature seats within
-    the peak at every corner (:func:`~coildrive.design.boost_armature.require_seated_in_peak`,
+    with an ``[armature]``: where the armature is still in flight at the threshold the
+    comparator carries it on (:func:`~coildrive.design.boost_armature.threshold_pull_in`);
+    with an eddy-current term or a bouncing seat on a drooping main supply only where it
+    seats within the peak at every corner (:func:`~coildrive.design.boost_armature.require_seated_in_peak`,
     else one line naming ``hold.mode``)."""
     if samples > 0:
         raise InputError("--samples", "", "the Monte Carlo covers the voltage-mode hold only "
@@ -497,11 +530,11 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
         th = choose_thresholds(drive, grid, peak_time)
         first, _ = evaluate_current(drive, th, grid.supply, grid.ambient, grid.r_factor,
                                     grid.l_factor, 0.0, heat_peak=peak_time)
-        if drive.supply.boosted and first.armature is not None:
+        if drive.supply.boosted and first.armature is not None and (why := in_flight_refused(drive)):
             from .boost_armature import require_seated_in_peak
             require_seated_in_peak(drive, grid.label, first.armature.pull_in, "hold.mode",
-                                   "a current-mode hold", "its thresholds would switch the coil with "
-                                   "the armature moving",
+                                   f"a current-mode hold with {why}", "its comparator's flight with "
+                                   "the armature moving takes neither on a drooping bus",
                                    "a voltage-mode hold (or the closed loop, which carries it)")
         pk = plan_peak(drive, grid, first)
         # the longest real peak: the ticks and the driver's switch lead
@@ -1064,9 +1097,11 @@ def _armature_actuation(drive: Drive, th: Thresholds, supply: float, coil_temp: 
     (:func:`threshold_hold`; with an eddy-current term the seated branch behind ``R_e``,
     the thresholds on its terminal current:
     :func:`coildrive.model.eddy_waveform.seated_hold`), the release run until the armature
-    is back on the open stop. Where the armature is not seated at the end of the peak, or
-    the hold's (magnetising) current falls below the stay current, the hold would switch
-    with the armature in flight: not modelled, refused in one line (``InputError``). Without a hold (``hold_time`` 0: a
+    is back on the open stop. After a boosted peak (a linear coil, :func:`in_flight_refused`)
+    the comparator carries an armature still in flight at the threshold onto the seat
+    first (:func:`comparator`). Where the armature is not seated at the end of the peak
+    otherwise, or the hold's (magnetising) current falls below the stay current, the hold
+    would switch with the armature in flight: not modelled, refused in one line (``InputError``). Without a hold (``hold_time`` 0: a
     STOP in the peak) the switch opens at the peak's end, the armature wherever it is."""
     from ..model.waveform import armature_actuation
 
@@ -1077,11 +1112,11 @@ def _armature_actuation(drive: Drive, th: Thresholds, supply: float, coil_temp: 
 
             one = np.ones(1)
             lp = Loop(v * one, r_on * one, r_off * one, v_off * one, seated, one, v * one)
-            ts, cur, mag, ons, t, m, t_last = seated_hold(lp, t0, i0, t0 + hold_time, th.control, th.lower_a,
+            ts, cur, mag, ons, t, m, t_last = seated_hold(lp, t0, i0, peak_time + hold_time, th.control, th.lower_a,
                                                           th.upper_a, th.off_time_s, th.delay_s, points)
             return ts, cur, ons, t, m, min(i0, float(np.min(mag, initial=i0))), t_last, mag
-        ts, cs, ons = [], [], []
-        t, i, last = threshold_hold(th, t0, i0, t0 + hold_time, v, r_on, r_off, v_off, seated,
+        ts, cs, ons = [], [], []   # (the hold ends hold_time after the peak, as the firmware's)
+        t, i, last = threshold_hold(th, t0, i0, peak_time + hold_time, v, r_on, r_off, v_off, seated,
                                     points, ts, cs, ons)
         if not ts:
             return np.empty(0), np.empty(0), np.empty(0), t, i, i0, t0
@@ -1092,9 +1127,11 @@ def _armature_actuation(drive: Drive, th: Thresholds, supply: float, coil_temp: 
     if hold_time <= 0:   # no hold (a STOP in the peak): the switch opens at the peak's end
         return armature_actuation(drive, supply, coil_temp, peak_time, 0.0, 1.0, 0.0, r_factor,
                                   l_factor, points, label)
+    # (after a boosted peak: an armature in flight at the threshold carried by the comparator)
+    cmp = comparator(th) if drive.supply.boosted and not in_flight_refused(drive) else None
     try:
         return armature_actuation(drive, supply, coil_temp, peak_time, 0.0, 1.0, hold_time,
-                                  r_factor, l_factor, points, label, hold=hold)
+                                  r_factor, l_factor, points, label, hold=hold, comparator=cmp)
     except ValueError as exc:
         raise InputError(drive.source, "hold.mode",
                          f"current mode at {supply:.4g} V, {coil_temp:.4g} degC: {exc}") from None

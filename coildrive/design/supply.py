@@ -130,6 +130,10 @@ HANDOVER_ARMATURE_CURVES = ("the armature's runs from the hand-over on the droop
                             "hand-over current, the hold's top and its first on-time on a stiff bus "
                             "over the seated curve from the larger of the hand-over and the seat's "
                             "current; the boost converter)")
+#: ... and split decay: the hold's off-times bypass the clamp, only the release draws through it.
+HANDOVER_ARMATURE_SPLIT = HANDOVER_ARMATURE_CLAMP.replace(
+    "(the clamp's off-times drawing from it)", "(the off-times through the bypass: the clamp draws only at "
+    "the release, under the floor)")
 #: ... where the hold's switching is not a fixed PWM, or a clamp draws in its off-times.
 HANDOVER_FLOOR = ("a floor: the source through R_s carries every draw from the hand-over on "
                   "(the coil at most the largest of the hand-over current, its first on-time "
@@ -312,6 +316,18 @@ def handover_bus(drive: Drive, res, duty, first_duty=None) -> tuple[np.ndarray, 
     # off-times at most the magnetising current, R_e i_m/(R_off + R_e))
     top = np.maximum(i_hand, res.hold.i_max if top is None else np.maximum(top, res.hold.i_max))
     top = np.where(np.isfinite(top), top, i_hand)
+    if runs is not None and drive.hold.mode == "current":
+        # where the comparator carries an armature in flight (no bounce): each on-time ends
+        # the sense delay after the upper threshold (or after its start where the current is
+        # above it, at most the hand-over's), the current rising over that delay at most as
+        # the open coil's from the bus's V_s (L(x) >= L_open; a closing armature's motional
+        # term only holds it back)
+        from ..model.armature_boost import seated_in_peak
+
+        shape = np.shape(lp.v_on)
+        flies = ~seated_in_peak(runs.slow).reshape(shape)
+        l_open = _shaped(res.armature.params.l_open, shape)
+        top = top + np.where(flies, lp.v_on * drive.hold.sense_delay / l_open, 0.0)
     pwm = _pwm_hold(drive)
     if runs is None and (pwm or first_duty is not None):
         top = np.maximum(top, _first_on_top(drive, lp, np.where(known, i_m, i_hand),
@@ -328,6 +344,7 @@ def handover_bus(drive: Drive, res, duty, first_duty=None) -> tuple[np.ndarray, 
     if runs is not None and pwm and (through_clamp(drive) or isinstance(ind, FluxCoil)):
         v_low, when = armature_clamp_bus(drive, lp, runs, top, duty, res.hold.period)
         return v_low, when, i_hand, HANDOVER_ARMATURE_CLAMP if through_clamp(drive) else HANDOVER_ARMATURE_CURVES
+        return v_low, when, i_hand, HANDOVER_ARMATURE_SPLIT if split_decay(drive) else HANDOVER_ARMATURE_CLAMP
     if not pwm or through_clamp(drive) or lp.mixed is not None:
         return np.minimum(floor, lp.v_on), t_hand, i_hand, HANDOVER_FLOOR
     if isinstance(ind, FluxCoil):

@@ -1228,6 +1228,16 @@ def design_system(system: System) -> SystemResult:
                        "prescaler": p, "period_ticks": n, "frequency_hz": timer.clock / (p * n),
                        "compare_ticks": {}})
     designs = [design_latch(c.drive) if c.drive.latch is not None else design(c.drive) for c in channels]
+    for c, d in zip(channels, designs):
+        a = None if is_latch(d) else d.armature
+        if (d.boost is not None and d.hold.regulation == "current" and a is not None
+                and a.seated_in_peak_corners is not None and a.seated_in_peak_corners < a.corners):
+            # (the rail's bound of a current-mode hold takes the seated coil's thresholds)
+            raise InputError(c.drive.source, "hold.mode", f"channel {c.name!r} of {system.source}: a current-mode "
+                             "hold that carries the armature in flight after the boosted peak (at "
+                             f"{a.corners - a.seated_in_peak_corners} of {a.corners} corners) is not modelled in a "
+                             "system yet; expected a higher threshold (pull_in.current_margin: seated within the "
+                             "peak at every corner) or a voltage-mode or closed-loop hold")
     for t in timers:
         for c, d in zip(channels, designs):
             if c.name in t["channels"]:

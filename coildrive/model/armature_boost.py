@@ -25,6 +25,13 @@ by period (a closed loop: ``control``) flies the same edges with each period's d
 current at the period's conversion (the flight's state there; with an eddy term the
 terminal current of the segment it falls in, what the sense carries).
 
+A current-mode hold (``comparator``, :class:`Comparator`) flies the
+same way from comparator edge to comparator edge: each on-time ends the comparator's delay
+after the current rises to the upper threshold, each off-time the delay after it falls to
+the lower one (hysteretic) or after the fixed off-time -- the thresholds events on the
+current in flight (:func:`~coildrive.model.armature_flight.fly`'s ``current_to``, rising or
+falling).
+
 A full bridge's mixed-decay hold (``mixed``, a :class:`~coildrive.model.pwm.MixedDecay`
 per point) starts each off-time of the flights fast -- all four switches open, through the
 body diodes into the bus: the release path's ``R_fast`` and ``V_fast = V_bus + 2 V_d``
@@ -57,7 +64,7 @@ import math
 
 import numpy as np
 
-from .armature import (BOUND, MAX_BOUNCES, OPEN, REST_FRACTION, SEAT, SEATED, STALLED, START, TRIPPED,
+from .armature import (BOUND, MAX_BOUNCES, OPEN, REST_FRACTION, SEAT, SEATED, STALLED, START, TRIP, TRIPPED,
                        ZERO, ArmatureParams)
 from .armature_flight import fly_mixed, is_stiff
 from .armature_runs import PullInBatch, pull_in
@@ -109,7 +116,8 @@ def hold_schedule(t0: float, t_end: float, duty: float, period: float, fast: flo
 
 def boosted_pull_in(p_boost: ArmatureParams, p_hold: ArmatureParams, trip, duty, period, until,
                     i_top=None, rtol: float = 1e-7, bus0=None, orbit: bool = True,
-                    control=None, mixed: MixedDecay | None = None) -> PullInBatch:
+                    control=None, mixed: MixedDecay | None = None,
+                    comparator: Comparator | None = None) -> PullInBatch:
     """Switch-on from rest: the boost (``p_boost``, :func:`boost_params`) until the current
     reaches ``trip`` A, then the hold (``p_hold``: the main supply's loop, ``duty`` and
     ``period`` s per point) until the armature seats, or ``until`` s after switch-on (per
@@ -153,6 +161,11 @@ def boosted_pull_in(p_boost: ArmatureParams, p_hold: ArmatureParams, trip, duty,
     ``mixed``: a full bridge's mixed-decay hold (its arrays per point; a stiff main supply),
     each off-time fast for its ``fraction`` first (module docstring); ``None``: the hold's
     off path throughout.
+
+    ``comparator``: a current-mode hold (:class:`Comparator`; on a drooping main supply the
+    bus a state of its flights too) switches the flights after the threshold by its
+    thresholds instead of ``duty`` (module docstring); an armature fallen back to the open
+    stop under it is taken as not seated.
     """
     if mixed is not None and p_hold.droops:
         raise ValueError("a mixed-decay hold's flights take a stiff main supply")
@@ -176,7 +189,8 @@ def boosted_pull_in(p_boost: ArmatureParams, p_hold: ArmatureParams, trip, duty,
         got = _hold_flights(p_hold.take(k), pin.trip_time[k], y0, per_point(duty)[k], per_point(period)[k],
                             per_point(until)[k], top[k], rtol,
                             None if control is None else _Sub(control, k),
-                            None if mixed is None else mixed.flat((n,)).at(k))
+                            None if mixed is None else mixed.flat((n,)).at(k), comparator)
+        got.pop("phase", None), got.pop("phase_edge", None)
         if droop:
             seat_bus[k] = got.pop("seat_bus")
             low[:, k] = got.pop("low")
@@ -247,6 +261,137 @@ def seated_hold_bus(p: ArmatureParams, t_hand, t_seat, i_seat, u_seat, duty, per
     return np.where(lower, v_h, v_low), np.where(lower, t_next + t_h, when), settled
 
 
+#: A current-mode hold's comparator phases (:class:`Comparator`): on until the current rises
+#: to the upper threshold, on for the delay after it, off until it falls to the lower one
+#: (hysteretic), off for a time (the delay after the lower threshold; the fixed off-time).
+ON_WAIT, ON_DELAY, OFF_WAIT, OFF_TIMED = 0, 1, 2, 3
+
+
+@dataclasses.dataclass(frozen=True)
+class Comparator:
+    """A current-mode hold switched by its thresholds (``hold.mode = "current"``), as
+    :func:`coildrive.design.hold_current.threshold_hold` runs it on the seated coil, here
+    as events on the current of an armature in flight: from the hand-over the switch is
+    off -- hysteretic, until the current falls to ``lower`` A and ``delay`` s more; the
+    fixed off-time, for ``off_time`` s -- then on until it rises to ``upper`` A and
+    ``delay`` s more (on for the delay alone where it is already at or above it), then off
+    again. ``delay``: the comparator's (``hold.sense_delay``). The current compared is
+    the sensed one: with an eddy term the terminal current, which steps at each switch edge
+    (``i_on``, ``i_off`` below: what it is with the switch on and off)."""
+
+    hysteretic: bool
+    upper: float
+    lower: float
+    off_time: float
+    delay: float
+
+    def start(self, t, i_on, i_off) -> tuple[np.ndarray, np.ndarray]:
+        """``(phase, edge s)`` per point at the hand-over at ``t`` s, the sensed current
+        ``i_on`` A with the switch on, ``i_off`` A with it off."""
+        phase = np.full(np.shape(t), OFF_TIMED if not self.hysteretic else OFF_WAIT)
+        edge = np.where(phase == OFF_TIMED, t + self.off_time, np.inf)
+        return self.settle(np.ones(np.shape(t), bool), phase, edge, t, i_on, i_off)
+
+    def turn(self, turn, phase, edge, t, i_on, i_off) -> tuple[np.ndarray, np.ndarray]:
+        """``(phase, edge)`` after the points ``turn`` reached their phase's end at ``t`` s
+        (an edge's time or the threshold's event), the sensed current ``i_on``/``i_off`` A."""
+        phase, edge = self._next(turn, phase, edge, t)
+        return self.settle(turn, phase, edge, t, i_on, i_off)
+
+    def settle(self, pending, phase, edge, t, i_on, i_off) -> tuple[np.ndarray, np.ndarray]:
+        """The phases just entered at ``t`` s (``pending``) that end at once passed on: a
+        threshold already met (on with the sensed current ``i_on`` at or above ``upper``, off
+        with ``i_off`` at or below ``lower``) or a timed phase of no length (no delay)."""
+        for _ in range(4):
+            pending = pending & (((phase == ON_WAIT) & (i_on >= self.upper))
+                                 | ((phase == OFF_WAIT) & (i_off <= self.lower))
+                                 | (((phase == ON_DELAY) | (phase == OFF_TIMED)) & (edge <= t)))
+            if not pending.any():
+                break
+            phase, edge = self._next(pending, phase, edge, t)
+        return phase, edge
+
+    def _next(self, mask, phase, edge, t) -> tuple[np.ndarray, np.ndarray]:
+        """The points ``mask`` moved on to their next phase at ``t`` s, its edge (s; ``inf``
+        where a threshold ends it)."""
+        nxt = np.choose(phase, [ON_DELAY, OFF_WAIT if self.hysteretic else OFF_TIMED, OFF_TIMED, ON_WAIT])
+        timed = np.where(phase == OFF_WAIT, t + self.delay, t + self.off_time)
+        ends = np.where(nxt == ON_DELAY, t + self.delay, np.where(nxt == OFF_TIMED, timed, np.inf))
+        return np.where(mask, nxt, phase), np.where(mask, ends, edge)
+
+    @staticmethod
+    def on(phase) -> np.ndarray:
+        """The switch's state in ``phase``."""
+        return (phase == ON_WAIT) | (phase == ON_DELAY)
+
+    def event(self, phase) -> tuple[np.ndarray, np.ndarray]:
+        """``(current_to A, trip_down)`` of a flight in ``phase`` (:func:`~coildrive.model.armature_flight.fly`):
+        the upper threshold rising, the lower one falling, else none."""
+        return (np.where(phase == ON_WAIT, self.upper, np.where(phase == OFF_WAIT, self.lower, np.inf)),
+                phase == OFF_WAIT)
+
+
+def _sensed(p: ArmatureParams, y, live) -> tuple[np.ndarray, np.ndarray]:
+    """``(A with the switch on, A off)``: the sensed current of the states ``y`` (rows of a
+    flight) -- with an eddy term the terminal current in each switch state (0 off where the
+    freewheel has blocked, not ``live``), on a drooping bus from the bus there; else the
+    coil's current."""
+    i = p.current(y[0], y[1])
+    if p.eddy is None:
+        return i, i
+    bus = y[5] if p.droops else None
+    return p.terminal(i, True, bus=bus), np.where(live, p.terminal(i, False, bus=bus), 0.0)
+
+
+def comparator_schedule(p: ArmatureParams, t0: float, y0, comparator: Comparator, until: float,
+                        rtol: float = 1e-7) -> list:
+    """The switch's segments ``(t_end s, on)`` of a current-mode hold from the threshold at
+    ``t0`` s (one point ``p``, a linear coil on a stiff bus: simulate's hold; ``y0``: lambda, x, v, q,
+    sq there, the armature not yet seated) to the first turn-off after the seat: the
+    comparator's flight (:func:`_hold_flights`) to the seat, then the seated coil's closed
+    form to the end of that on-time (its delay after the upper threshold), where the seated
+    coil's hold (:func:`coildrive.design.hold_current.threshold_hold`) takes over. Raises
+    ``ValueError`` where the armature is not seated by ``until`` s or the upper threshold
+    is out of the seated coil's reach."""
+    from .rl import decay_current, decay_time, rise_time
+
+    log: list = []
+    got = _hold_flights(p, np.array([t0], float), np.asarray(y0, float).reshape(-1, 1), np.zeros(1), np.ones(1),
+                        np.array([until], float), np.full(1, np.inf), rtol, comparator=comparator, log=log)
+    if got["status"][0] != SEATED:
+        raise ValueError("the current-mode hold does not carry the armature onto the seat within the "
+                         f"window ({until:.4g} s)")
+    t_seat = float(got["seat_time"][0])
+    y_col = np.asarray(y0, float).reshape(-1, 1)
+    out, on = [], bool(Comparator.on(comparator.start(np.array([t0]), *_sensed(p, y_col, np.ones(1, bool)))[0])[0])
+    for t, switched, now in log:
+        if switched[0] and t[0] <= t_seat:
+            out.append((float(t[0]), on))
+            on = bool(now[0])
+    t, i, phase, edge = t_seat, float(got["seat_current"][0]), int(got["phase"][0]), float(got["phase_edge"][0])
+    v, r_on, r_off, v_off = (float(a[0]) for a in (p.v_on, p.r_on, p.r_off, p.v_off))
+    ind = p.take([0]).coil_closed   # (with an eddy term the seated EddyCoil: magnetising currents)
+    cmp = comparator
+    # the thresholds on the sensed current as the magnetising current's (an eddy term's
+    # terminal current with the switch on, and off)
+    upper, lower = cmp.upper, cmp.lower
+    if p.eddy is not None:
+        r_e = float(p.eddy[0])
+        upper, lower = ((r_on + r_e) * upper - v) / r_e, ((r_off + r_e) * lower + v_off) / r_e
+    if phase in (OFF_WAIT, OFF_TIMED):   # the rest of the off-time, then on to the upper threshold
+        t1 = edge if phase == OFF_TIMED else t + float(np.ravel(decay_time(lower, i, r_off, v_off, ind))[0]) + cmp.delay
+        i = float(np.ravel(decay_current(t1 - t, i, r_off, v_off, ind))[0])
+        out.append((t1, False))
+        t, phase, edge = t1, ON_WAIT, math.inf
+    if phase == ON_WAIT:
+        rise = float(np.ravel(rise_time(upper, i, v, r_on, ind))[0])
+        if not math.isfinite(rise):
+            raise ValueError("the seated coil does not reach the current-mode hold's upper threshold")
+        edge = t + rise + cmp.delay
+    out.append((edge, True))
+    return out
+
+
 class _Sub:
     """A ``control`` of :func:`boosted_pull_in` seen at the points ``k`` of its own."""
 
@@ -261,7 +406,8 @@ class _Sub:
 
 
 def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: float,
-                  control=None, mixed: MixedDecay | None = None) -> dict:
+                  control=None, mixed: MixedDecay | None = None, comparator: Comparator | None = None,
+                  log: list | None = None) -> dict:
     """The hold after the threshold for points whose armature is open or in flight there
     (``t0`` s, states ``y0``: lambda, x, v, q, sq, and on a drooping main bus its capacitor
     u V) until ``until`` s, all at once: the batched flight
@@ -274,7 +420,12 @@ def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: f
     :class:`PullInBatch` fields of :func:`boosted_pull_in`; on a drooping bus also
     ``seat_bus`` (V at the seat, NaN where not seated) and ``low`` (2 x N: the lowest bus V
     and when, s, up to the seat or ``until``). ``mixed``: each off-time fast for its
-    fraction first (the points' fast path ``r_fast``, ``v_fast``), then through ``p``'s."""
+    fraction first (the points' fast path ``r_fast``, ``v_fast``), then through ``p``'s.
+    ``comparator``: a current-mode hold's thresholds switch it instead (``duty`` and
+    ``period`` unused): each flight ends at its phase's edge or its threshold's event; also
+    ``phase`` and ``phase_edge`` (s) per point, the comparator's where it seated (an
+    armature fallen back to the open stop is taken as not seated, as under a ``control``);
+    ``log`` gets ``(t s, switched, on)`` at each of its turns (arrays per point)."""
     n = len(p)
     t = np.asarray(t0, float).copy()
     y = np.asarray(y0, float).copy()
@@ -309,6 +460,11 @@ def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: f
     live = np.ones(n, bool)
     cycle = np.zeros(n)                 # the start of the current PWM period, s after t0
     edge = np.minimum(t + t_on, bound)
+    if comparator is not None:   # off from the hand-over, as the seated coil's hold
+        phase, cedge = comparator.start(t, *_sensed(p, y, live))
+        on = Comparator.on(phase)
+        edge = np.minimum(cedge, bound)
+        res["phase"], res["phase_edge"] = np.zeros(n, int), nan.copy()
     active = np.ones(n, bool)
     alone = np.zeros(n, bool)
     for _ in range(MAX_EDGES):
@@ -317,7 +473,8 @@ def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: f
         p_now = p if mixed is None else dataclasses.replace(
             p, r_off=np.where(fast, mixed.r_fast, p.r_off), v_off=np.where(fast, mixed.v_fast, p.v_off))
         before = None if control is None else np.isnan(sampled[0])
-        fl = fly_mixed(p_now, t, y, edge, active, on, live, stiff, rtol, **track,
+        events = {} if comparator is None else dict(zip(("current_to", "trip_down"), comparator.event(phase)))
+        fl = fly_mixed(p_now, t, y, edge, active, on, live, stiff, rtol, **track, **events,
                        **({} if control is None else {"query": at, "query_y": sampled}))
         if control is not None:   # (a sample taken in this flight: the segment's state)
             got = before & np.isfinite(sampled[0])
@@ -344,13 +501,17 @@ def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: f
         res["seat_square"] = np.where(holds, y[4], res["seat_square"])
         if droop:
             res["seat_bus"] = np.where(holds, y[5], res["seat_bus"])
+        if comparator is not None:
+            res["phase"] = np.where(holds, phase, res["phase"])
+            res["phase_edge"] = np.where(holds, cedge, res["phase_edge"])
         active &= ~holds
         opn = active & (fl.end == OPEN)
         y[2] = np.where(opn, 0.0, y[2])
         rests = opn & (y[0] <= lam_start)
         stays = rests & (i_top < p.start_current)
         res["stall_gap"] = np.where(stays, p.stroke, res["stall_gap"])
-        if control is not None:    # fallen back under a closed loop: taken as not seated
+        if control is not None or comparator is not None:    # fallen back under a closed loop
+            # or a comparator: taken as not seated
             res["stall_gap"] = np.where(rests, p.stroke, res["stall_gap"])
             stays = rests
         alone |= rests & ~stays
@@ -362,6 +523,18 @@ def _hold_flights(p: ArmatureParams, t0, y0, duty, period, until, i_top, rtol: f
         res["stall_gap"] = np.where(over, y[1], res["stall_gap"])
         active &= ~over
         turn = at_edge & ~over
+        if comparator is not None:   # its phase's edge or its threshold reached: the next phase
+            turn = (turn | (fl.end == TRIP)) & active
+            phase, cedge = comparator.turn(turn, phase, cedge, t, *_sensed(p, y, live))
+            was, on = on, Comparator.on(phase)
+            if log is not None:
+                log.append((t.copy(), turn & (on != was), on.copy()))
+            live = np.where(turn & on, True, live)
+            edge = np.minimum(np.maximum(cedge, t), bound)
+            stuck = active & (fl.end == BOUND) & ~at_edge
+            res["stall_gap"] = np.where(stuck, y[1], res["stall_gap"])
+            active &= ~stuck
+            continue
         t_fast = fraction * (period - t_on)
         off = turn & on & (t_on < period)
         # (the fast part's end: on to the slow part, unless the fast part fills the off-time)

@@ -391,7 +391,8 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
         low_until: np.ndarray | None = None, held: np.ndarray | None = None,
         flux_to: np.ndarray | None = None, current_to: np.ndarray | None = None,
         flux_down: np.ndarray | None = None, returns: np.ndarray | None = None,
-        high: np.ndarray | None = None, sink: bool = True, drain: np.ndarray | None = None) -> Flight:
+        high: np.ndarray | None = None, sink: bool = True, drain: np.ndarray | None = None,
+        trip_down: np.ndarray | None = None) -> Flight:
     """Integrate the free armature of every ``active`` point from ``t`` until a stop, the
     current reaching zero (switch off), or ``t_end``.
 
@@ -420,7 +421,8 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
     on the drooping bus; it ends (code START) where the flux linkage rises to ``flux_to`` Wb
     current_to : A per point (``inf``: none): a flight (free or ``held``) ends (code TRIP)
     where the coil's current (with an eddy term the terminal current) rises to it -- a
-    boosted peak's threshold
+    boosted peak's threshold; with ``trip_down`` (bool per point) True, where it *falls* to
+    it instead (a current-mode hold's lower threshold, the switch off)
     flux_down : Wb per point: where ``held``, the resting stretch ends (code START) where
     the flux linkage falls to it instead (the seated coil's decay to the stay current)
     returns : V per point, a full bridge's two body diodes ``2 V_d``: switched off, the
@@ -452,6 +454,8 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
     target = np.full(n, np.inf) if flux_to is None else np.broadcast_to(flux_to, (n,))
     floor = None if flux_down is None else np.broadcast_to(flux_down, (n,))
     trip_at = None if current_to is None else np.broadcast_to(np.asarray(current_to, float), (n,))
+    # (the comparator's sign per point: +1 trips rising to trip_at, -1 falling to it)
+    sign = 1.0 if trip_down is None else np.where(np.broadcast_to(trip_down, (n,)), -1.0, 1.0)
     rows = [0, 1, 2]                 # the rows under error control
     scale = rtol * p.reference_scales()
     if p.droops:
@@ -497,7 +501,8 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
             rate = rhs.current_rate if rhs.t1 is None else rhs.terminal_rate
             c_old, dc_old = rate(y, k1)
             c_new, dc_new = rate(y_new, k7)
-            trip = ok & (c_new >= trip_at)   # (held too: a resting stretch's threshold)
+            # (held too: a resting stretch's threshold)
+            trip = ok & (sign * (c_new - trip_at) >= 0.0)
         if rhs.t1 is None:
             zero = ok & ~on & live & (y_new[0] < 0.0)
         else:   # an eddy term: the freewheel stops where the terminal current reaches zero
@@ -516,7 +521,8 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
                      (zero, g_old, g_new, dg_old, dg_new, ZERO)),
                     ((start, target - y[0], target - y_new[0], -k1[0], -k7[0], START) if floor is None else
                      (start, y[0] - floor, y_new[0] - floor, k1[0], k7[0], START)),
-                    (trip, *((trip_at - c_old, trip_at - c_new, -dc_old, -dc_new) if trip_at is not None
+                    (trip, *((sign * (trip_at - c_old), sign * (trip_at - c_new), -sign * dc_old, -sign * dc_new)
+                             if trip_at is not None
                              else (y[0],) * 4), TRIP)):
                 if mask.any():
                     th = np.where(mask, _root(g0, g1, d0, d1, h), 1.0)

@@ -582,8 +582,10 @@ def simulate(p: ArmatureParams, schedule, state: str = "open", flux: float = 0.0
     pt = _Point(p)
     paths = {"hold": pt}
     if release_params is not None:
-        paths["release"] = _Point(dataclasses.replace(p, r_off=release_params.r_off,
-                                                      v_off=release_params.v_off))
+        # (a clamp the release's path draws from a drooping bus through: its own, split decay's)
+        paths["release"] = _Point(dataclasses.replace(p, r_off=release_params.r_off, v_off=release_params.v_off,
+                                                      clamp=p.clamp if release_params.clamp is None
+                                                      else release_params.clamp))
     if rtol is None:
         rtol = 1e-8 if method == "numpy" else REFERENCE_RTOL
     if state not in ("open", "seated") and not (start is not None and state == "free"):

@@ -580,7 +580,7 @@ def node_columns(drive: Drive, supply: float, current, on, v_sw) -> dict:
 def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time: float,
                        duty: float, frequency: float, hold_time: float, r_factor: float = 1.0,
                        l_factor: float = 1.0, points: int = 8, label: str = "",
-                       method: str = "numpy", hold=None) -> Waveform:
+                       method: str = "numpy", hold=None, comparator=None) -> Waveform:
     """:func:`actuation` with the moving armature (see :mod:`coildrive.model.armature_sim`).
 
     The same switch schedule -- peak from t = 0, whole PWM periods of hold, off -- drives
@@ -617,7 +617,12 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     rows at each edge) and an eighth item the samples' magnetising current. It needs the
     armature seated at the end of the peak and the hold's (magnetising) current never
     below the stay current (else ``ValueError``: a hold switched by thresholds with the
-    armature in flight is not modelled), and takes no mixed decay. On a full bridge its on-times are
+    armature in flight is not modelled), and takes no mixed decay -- except after a boosted
+    peak (a linear coil; the hold on the stiff bus, as the seated coil's) with its ``comparator`` given
+    (:class:`~coildrive.model.armature_boost.Comparator`): there the comparator's switching
+    carries the armature still in flight at the threshold on to the seat
+    (:func:`~coildrive.model.armature_boost.comparator_schedule`, the run through its edges),
+    and ``hold`` takes over at the first turn-off after it. On a full bridge its on-times are
     Q1 + Q4 and its off-times the slow decay (the hold's loop), the release the fast one
     (on the drooping bus riding it, :func:`_bus_release`).
     """
@@ -633,14 +638,14 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
         from .armature_boost import boost_params
         p_peak = boost_params(p, s.boost, s.boost_capacitance, s.boost_resistance)
     #: a boosted peak on a drooping main supply: the hold and the release on the main bus
+    split = split_decay(drive)
     main = (params_from_loop(drive.armature, lp, l_factor, drive.coil.eddy_resistance,
                              bus=(s.source_resistance, s.capacitance))
             if s.boosted and s.droops and hold is None else None)
-    if main is not None and drive.freewheel.type == "clamp":   # its off-times draw from the bus
+    if main is not None and drive.freewheel.type == "clamp" and not split:   # its off-times draw from the bus
         main = main.clamped()
     main_bus = None
     fed: list = []   # after a boost on a drooping main supply: the source less the converter's draw, V
-    split = split_decay(drive)
     bridge = full_bridge(drive)   # the hold decays slowly, the release fast into the bus
     fast = p_rel = None
     if split or bridge:
@@ -704,8 +709,10 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
             on_bus = converter_fed(drive, main, float(head.current[-1]), duty, frequency)
             fed.append(float(on_bus.v_on[0]))
             start.append(supply)
+        # (split decay with a clamp on the main bus: the release's path draws from it, the hold's not)
+        rel = p_rel.clamped() if main is not None and split and drive.freewheel.type == "clamp" else p_rel
         rest = simulate(on_bus, schedule[1:], state=head.state, start=np.array(start), live=live,
-                        method=method, points=points, stop=released, release_params=p_rel, t0=peak_time)
+                        method=method, points=points, stop=released, release_params=rel, t0=peak_time)
         bus = None
         if main is not None:   # (with an eddy term _joined keeps the rest's first row: the step)
             bus = np.concatenate([np.full(head.time.size, float(supply)), rest.bus[0 if p.eddy is not None else 1:]])
@@ -723,12 +730,24 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
         # with an eddy term: the seated coil's magnetising branch behind R_e, the terminal
         # current compared).
         head = simulate(p_peak, schedule[:1], method=method, points=points)
+        t_hand = peak_time   # where the seated coil's hold starts
+        if (comparator is not None and hold is not None and head.state != "seated" and main is None
+                and s.boosted and p.curves is None):
+            # the comparator carries the armature in flight onto the seat, to a turn-off
+            from .armature_boost import comparator_schedule
+            start = np.array([head.flux[-1], head.position[-1], head.velocity[-1], head.charge[-1],
+                              head.square[-1]])
+            edges = comparator_schedule(p, peak_time, start, comparator, peak_time + bound)
+            rest = simulate(p, [(t_e, on, points) for t_e, on in edges], state=head.state, start=start,
+                            live=True, method=method, points=points, t0=peak_time, release_params=p_rel)
+            head = _joined(head, rest, float(p.v_on[0]))
+            t_hand = float(head.time[-1])
         i0 = float(head.current[-1] if p.eddy is None else head.magnetising_current[-1])
         if head.state == "seated" and main is None:
             v, r_on, r_off, v_off = (float(a[0]) for a in (p.v_on, p.r_on, p.r_off, p.v_off))
             seated = float(p.l_closed[0]) if p.curves is None and p.eddy is None else p.coil_closed[0]
             if hold is not None:   # thresholds: the final turn-off and the bypass follow them
-                th, ih, oh, t_cut, i_cut, lowest, t_last, *more = hold(peak_time, i0, v, r_on, r_off,
+                th, ih, oh, t_cut, i_cut, lowest, t_last, *more = hold(t_hand, i0, v, r_on, r_off,
                                                                        v_off, seated)
                 mh = more[0] if more else None
                 t_off, t_on = t_cut, t_cut - t_last
