@@ -343,8 +343,9 @@ def handover_bus(drive: Drive, res, duty, first_duty=None) -> tuple[np.ndarray, 
         ind, r_e = ind.magnetising, ind.resistance
     if runs is not None and pwm and (through_clamp(drive) or isinstance(ind, FluxCoil)):
         v_low, when = armature_clamp_bus(drive, lp, runs, top, duty, res.hold.period)
-        return v_low, when, i_hand, HANDOVER_ARMATURE_CLAMP if through_clamp(drive) else HANDOVER_ARMATURE_CURVES
-        return v_low, when, i_hand, HANDOVER_ARMATURE_SPLIT if split_decay(drive) else HANDOVER_ARMATURE_CLAMP
+        method = (HANDOVER_ARMATURE_CURVES if not through_clamp(drive) else
+                  HANDOVER_ARMATURE_SPLIT if split_decay(drive) else HANDOVER_ARMATURE_CLAMP)
+        return v_low, when, i_hand, method
     if not pwm or through_clamp(drive) or lp.mixed is not None:
         return np.minimum(floor, lp.v_on), t_hand, i_hand, HANDOVER_FLOOR
     if isinstance(ind, FluxCoil):
