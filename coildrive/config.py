@@ -1615,10 +1615,9 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
     a fixed, supply-table or closed-loop hold, or a current-mode hold (the fixed off-time:
     each off-time's first ``fast_fraction`` fast, the rest slow; hysteretic: each off-time
     fast for a fixed one-shot time, ``fast_fraction`` x the slow-decay off-time at the
-    nominal point; a linear coil on a stiff or a drooping main supply, or an eddy term or a
-    flux-linkage curve (not both) on a stiff one; no boost, no ``[armature]`` -- a curve
-    with an eddy term, either on the drooping bus, a boosted peak and a moving armature are
-    not modelled with it),
+    nominal point; a linear coil, an eddy term or a flux-linkage curve (not both), on a
+    stiff or a drooping main supply; no boost, no ``[armature]`` -- a curve with an eddy
+    term, a boosted peak and a moving armature are not modelled with it),
     and with a supply that cannot sink the returned
     energy, the bulk capacitance. (The supply's ``sink`` and
     ``capacitance`` keys mean nothing to the other topologies, which return no energy.)"""
@@ -1640,18 +1639,14 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
     if hold.regulation == "current" and hold.fast_fraction > 0:
         why = ("a flux-linkage curve with an eddy term (coil.flux_current with coil.eddy_resistance)"
                if coil.flux_current and coil.eddy_resistance else
-               "a flux-linkage curve or an eddy term on the drooping bus (coil.flux_current or "
-               "coil.eddy_resistance with supply.source_resistance)"
-               if (coil.flux_current or coil.eddy_resistance) and supply.droops else
                "a boosted peak (supply.boost)" if supply.boosted else
                "an [armature]" if armature is not None else "")
         if why:
             raise InputError(source, "hold.fast_fraction", f"{hold.fast_fraction:g} with hold.mode = "
                              f"\"current\" and {why}: a full bridge's current-mode mixed decay is "
-                             "modelled on a linear coil on a stiff or a drooping main supply, or with "
-                             "an eddy term or a curve (not both) on a stiff one, no boost, no "
-                             "[armature]; expected 0 or the key left out (or a fixed, supply-table "
-                             "or closed-loop hold)")
+                             "modelled on a linear coil, an eddy term or a curve (not both), on a "
+                             "stiff or a drooping main supply, no boost, no [armature]; expected 0 "
+                             "or the key left out (or a fixed, supply-table or closed-loop hold)")
     if not supply.sink and not supply.capacitance > 0:
         raise InputError(source, "supply.capacitance", "missing: with sink = false the returned "
                          "energy lands on the bulk capacitance, expected its value (e.g. \"470 uF\")")

@@ -180,17 +180,3 @@ def test_compiled_driver_in_the_loop_passes_check(curve_hysteretic, tmp_path):
     0.2 % of the prediction and the release within 5 % (measured within 3.2 %). Plumbing:
     the coil model is the design's."""
     compiled_loop_checks(design(curve_hysteretic[1]), tmp_path, 2e-3)
-
-
-@pytest.mark.parametrize("what", ["eddy", "droop"])
-def test_a_curve_with_an_eddy_term_or_on_the_drooping_bus_stays_one_line(tmp_path, what):
-    """Not modelled with it: one line naming hold.fast_fraction (`design`, a subprocess:
-    exit 2, no traceback)."""
-    hold = 'frequency = "20 kHz"\nmode = "current"\n' + HOLDS["off_time"]
-    extra = {"eddy": ('resistance = "24 ohm"', 'resistance = "24 ohm"\neddy_resistance = "300 ohm"'),
-             "droop": ("[supply]\n", '[supply]\nsource_resistance = "0.5 ohm"\n')}[what]
-    path = bridge_variant(tmp_path, ('frequency = "20 kHz"\n', hold),
-                          ('inductance = "70 mH"\n', "flux_current" + CURVE_TEXT), extra, name="refused.toml")
-    r = run_cli("design", str(path))
-    assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1, r.stderr
-    assert "hold.fast_fraction" in r.stderr and "Traceback" not in r.stderr

@@ -30,7 +30,6 @@ from conftest import run_cli
 from test_bridge_current import bridge_variant, compiled_loop_checks, designed, device_checks
 from coildrive.config import load_drive
 from coildrive.design import design
-from coildrive.errors import InputError
 from coildrive.model.current_mode import hysteretic_steady_state, off_time_steady_state
 from coildrive.model.eddy import EddyCoil
 from coildrive.model.pwm import MixedDecay
@@ -245,18 +244,6 @@ def test_compiled_driver_in_the_loop_passes_check(eddy_mixed, tmp_path):
     to about 6 %), so it is held to no longer than 2 % over and no shorter than 15 % under.
     Plumbing: the coil model is the design's."""
     compiled_loop_checks(design(eddy_mixed[1]), tmp_path, 2e-3, release=(0.85, 1.02))
-
-
-def test_with_the_drooping_bus_it_stays_one_line(tmp_path):
-    """The eddy term with the drooping bus: still refused, in one line naming the bus."""
-    path = _drive(tmp_path, "off_time")
-    path.write_text(path.read_text().replace("[supply]\n", '[supply]\nsource_resistance = "0.5 ohm"\n', 1))
-    with pytest.raises(InputError) as err:
-        load_drive(path)
-    line = str(err.value)
-    assert "\n" not in line and "hold.fast_fraction" in line and "drooping bus" in line
-    r = run_cli("design", str(path))
-    assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1 and "Traceback" not in r.stderr
 
 
 def test_a_band_narrower_than_the_fast_paths_step_chatters(tmp_path):

@@ -56,7 +56,7 @@ from ..config import Drive
 from ..errors import InputError
 from ..model.circuit import full_bridge, loop, split_decay, two_paths
 from ..model.current_mode import (CurrentModeSteadyState, MixedPath, hysteretic_steady_state,
-                                  off_time_steady_state)
+                                  off_time_steady_state, sensed_threshold)
 from ..model.eddy import EddyCoil
 from ..model.flux import FluxCoil
 from ..model.losses import HoldLosses, element_powers
@@ -395,31 +395,49 @@ def evaluate_current(drive: Drive, th: Thresholds, supply, ambient, r_factor, l_
 
 def fast_pulses(drive: Drive, th: Thresholds, lp, cm: CurrentModeSteadyState) -> tuple:
     """A full bridge's current-mode mixed decay on a drooping bus that sinks (a linear
-    coil): ``(t_fast, T)`` per point, each period's fast part at most ``t_fast`` s and the
-    periods at least ``T`` s long whatever the bus does, for
+    coil, a curve or an eddy term): ``(t_fast, T)`` per point, each period's fast part at
+    most ``t_fast`` s and the periods at least ``T`` s long whatever the bus does, for
     :func:`coildrive.model.bus_decay.mixed_hold_rise` (its bound grows with ``t_fast`` and
-    shrinks with ``T``). The bus never rises more than ``R_s i_top`` over the source (``C
-    du/dt = -u / R_s + j`` with ``j <= i_top``), so every on-time is at least the rise at
-    ``V_hi = V_s + R_s i_top`` from the highest bottom: hysteretic, from the lower threshold
-    (the off-time ends at or below it) to the upper, and ``T`` that plus the one-shot
-    (``t_fast``, cut short where the lower threshold comes first: a shorter pulse in a
-    shorter period bounds less); the fixed off-time, from the decay with nothing opposing
-    through the whole off-time (the bus stays above ``-2 V_d``: ``V_f >= 0``), and ``T``
-    that plus ``t_off``, ``t_fast = fast_fraction x t_off``. Where the threshold is out of
-    reach (no switching) no fast part."""
-    s, m = drive.supply, lp.mixed
+    shrinks with ``T``). The bus stays within ``R_s i_top`` of the source (``C du/dt = -u /
+    R_s + j`` with ``|j| <= i_top``, the coil's top: with an eddy term the larger of the
+    magnetising and the sensed top), so every on-time is at least the rise at ``V_hi = V_s +
+    R_s i_top`` from the highest bottom to the lowest end: hysteretic, from the lower
+    threshold (the off-time ends at or below it) to the upper, and ``T`` that plus the
+    one-shot (``t_fast``, cut short where the lower threshold comes first: a shorter pulse
+    in a shorter period bounds less); the fixed off-time, from the decay with nothing
+    opposing through the whole off-time (the bus stays above ``-2 V_d``: ``V_f >= 0``, and
+    a slower decay leaves a higher bottom), and ``T`` that plus ``t_off``, ``t_fast =
+    fast_fraction x t_off``. A curve's segments are its quadrature (:mod:`coildrive.model.rl`
+    hands over). With an eddy term the state is the magnetising current and the thresholds
+    are sensed: the on-time ends at the upper (peak) threshold's magnetising current at
+    ``V_hi`` (the lowest), the hysteretic off-time at most at the lower threshold's met in
+    the fast part with ``V_f = V_hi + 2 V_d`` (the highest; the slow part's is lower), and
+    the fixed off-time's decay starts from the top at ``V_lo = V_s - R_s i_top`` (the
+    highest). Where the threshold is out of reach (no switching) no fast part."""
+    s, m, ind = drive.supply, lp.mixed, lp.inductance
     top = np.asarray(cm.i_max, float)
+    if cm.terminal_max is not None:
+        top = np.maximum(top, np.asarray(cm.terminal_max, float))
     v_hi = np.asarray(lp.v_on, float) + s.source_resistance * top
-    ind = np.asarray(lp.inductance, float)
-    if th.control == "hysteretic":
+    hyst = th.control == "hysteretic"
+    end, start = (th.upper_a, th.lower_a) if hyst else (th.upper_a, None)
+    peak = np.asarray(cm.i_max, float)
+    if isinstance(ind, EddyCoil):   # the thresholds as magnetising currents (docstring)
+        r_e = ind.resistance
+        end = sensed_threshold(th.upper_a, v_hi, lp.r_on, r_e)
+        if hyst:
+            start = sensed_threshold(th.lower_a, -(v_hi + 2.0 * drive.freewheel.diode_drop), m.r_fast, r_e)
+        else:
+            v_lo = np.asarray(lp.v_on, float) - s.source_resistance * top
+            peak = rise_current(th.delay_s, sensed_threshold(th.upper_a, v_lo, lp.r_on, r_e), v_hi, lp.r_on, ind)
+    if hyst:
         t_fast = th.off_time_s
-        t_on = rise_time(th.upper_a, th.lower_a, v_hi, lp.r_on, ind)
-        period = t_on + t_fast
+        period = rise_time(end, np.minimum(start, end), v_hi, lp.r_on, ind) + t_fast
     else:
         t_fast = m.fraction * th.off_time_s
-        bottom = top * np.exp(-(t_fast * np.asarray(m.r_fast, float) + (th.off_time_s - t_fast)
-                                * np.asarray(lp.r_off, float)) / ind)
-        period = rise_time(th.upper_a, np.minimum(bottom, th.upper_a), v_hi, lp.r_on, ind) + th.off_time_s
+        bottom = decay_current(th.off_time_s - t_fast, decay_current(t_fast, peak, m.r_fast, 0.0, ind),
+                               lp.r_off, 0.0, ind)
+        period = rise_time(end, np.minimum(bottom, end), v_hi, lp.r_on, ind) + th.off_time_s
     reg = np.asarray(cm.regulated, bool)
     return np.where(reg, t_fast, 0.0), np.where(reg, period, 1.0)
 
