@@ -298,19 +298,18 @@ def test_virtual_device_runs_it_and_check_passes(mixed, tmp_path):
     device_checks(design(mixed[0]), tmp_path)
 
 
-@pytest.mark.parametrize("what", ["curve-eddy", "armature"])
+@pytest.mark.parametrize("what", ["curve-eddy"])
 def test_what_current_mode_mixed_decay_refuses_is_one_line(tmp_path, what):
-    """A curve with an eddy term, an [armature]: one line naming the key (an eddy term, the
-    drooping bus and a curve alone, either on the drooping bus, are designed:
-    tests/test_bridge_current_mixed_eddy.py, _droop.py, _curve.py, _droop_coils.py)."""
-    from test_bridge_armature import ARMATURE
+    """A curve with an eddy term: one line naming the key (an eddy term, the drooping bus
+    and a curve alone, either on the drooping bus, an [armature] are designed:
+    tests/test_bridge_current_mixed_eddy.py, _droop.py, _curve.py, _droop_coils.py,
+    _armature.py)."""
     from test_flux_bridge import CURVE
 
     curve = ('inductance = "70 mH"\n', "flux_current" + CURVE)
     edits, fragment = {
         "curve-eddy": ((curve, ('resistance = "24 ohm"', 'resistance = "24 ohm"\neddy_resistance = "300 ohm"')),
-                       "flux-linkage curve with an eddy term"),
-        "armature": (((("[ambient]\n", ARMATURE + "\n[ambient]\n")),), "[armature]")}[what]
+                       "flux-linkage curve with an eddy term")}[what]
     path = _variant(tmp_path, (HOLD, HOLD + "fast_fraction = 0.3\n"), *edits)
     with pytest.raises(InputError) as err:
         load_drive(path)

@@ -1082,11 +1082,16 @@ def _armature_actuation(drive: Drive, th: Thresholds, supply: float, coil_temp: 
     (:func:`threshold_hold`; with an eddy-current term the seated branch behind ``R_e``,
     the thresholds on its terminal current:
     :func:`coildrive.model.eddy_waveform.seated_hold`), the release run until the armature
-    is back on the open stop. Where the armature is not seated at the end of the peak, or
+    is back on the open stop (a full bridge's mixed decay: each off-time's fast part first,
+    all four open, flagged for the bridge's columns). Where the armature is not seated at the end of the peak, or
     the hold's (magnetising) current falls below the stay current, the hold would switch
     with the armature in flight: not modelled, refused in one line (``InputError``). Without a hold (``hold_time`` 0: a
     STOP in the peak) the switch opens at the peak's end, the armature wherever it is."""
     from ..model.waveform import armature_actuation
+
+    mixed = loop(drive, supply, coil_temp, r_factor, l_factor).mixed   # (a bridge's fast part)
+    t_fast = 0.0 if mixed is None else \
+        th.off_time_s if th.control == "hysteretic" else mixed.fraction * th.off_time_s
 
     def hold(t0, i0, v, r_on, r_off, v_off, seated):
         if isinstance(seated, EddyCoil):   # the seated branch behind R_e: the terminal current sensed
@@ -1094,18 +1099,21 @@ def _armature_actuation(drive: Drive, th: Thresholds, supply: float, coil_temp: 
             from ..model.eddy_waveform import seated_hold
 
             one = np.ones(1)
-            lp = Loop(v * one, r_on * one, r_off * one, v_off * one, seated, one, v * one)
-            ts, cur, mag, ons, t, m, t_last = seated_hold(lp, t0, i0, t0 + hold_time, th.control, th.lower_a,
-                                                          th.upper_a, th.off_time_s, th.delay_s, points)
-            return ts, cur, ons, t, m, min(i0, float(np.min(mag, initial=i0))), t_last, mag
+            lp = Loop(v * one, r_on * one, r_off * one, v_off * one, seated, one, v * one, mixed=mixed)
+            ts, cur, mag, ons, t, m, t_last, fast = seated_hold(
+                lp, t0, i0, t0 + hold_time, th.control, th.lower_a, th.upper_a, th.off_time_s, th.delay_s,
+                points, t_fast)
+            return ts, cur, ons, t, m, min(i0, float(np.min(mag, initial=i0))), t_last, mag, fast
         ts, cs, ons = [], [], []
+        marks = [] if mixed is not None else None
         t, i, last = threshold_hold(th, t0, i0, t0 + hold_time, v, r_on, r_off, v_off, seated,
-                                    points, ts, cs, ons)
+                                    points, ts, cs, ons, mixed, marks)
         if not ts:
             return np.empty(0), np.empty(0), np.empty(0), t, i, i0, t0
         cur = np.concatenate(cs)
+        fast = None if marks is None else np.concatenate(marks, axis=1)[1]
         return (np.concatenate(ts), cur, np.concatenate(ons), t, i, min(i0, float(np.min(cur))),
-                last[0] if last else t0)
+                last[0] if last else t0, None, fast)
 
     if hold_time <= 0:   # no hold (a STOP in the peak): the switch opens at the peak's end
         return armature_actuation(drive, supply, coil_temp, peak_time, 0.0, 1.0, 0.0, r_factor,
