@@ -1616,8 +1616,9 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
     each off-time's first ``fast_fraction`` fast, the rest slow; hysteretic: each off-time
     fast for a fixed one-shot time, ``fast_fraction`` x the slow-decay off-time at the
     nominal point; a linear coil, an eddy term or a flux-linkage curve (not both), on a
-    stiff or a drooping main supply, an ``[armature]`` too (seated in the hold); no boost --
-    a curve with an eddy term and a boosted peak are not modelled with it),
+    stiff or a drooping main supply, an ``[armature]`` too (seated in the hold), or after
+    a boosted peak (the hold from the hand-over) -- a curve with an eddy term, and a
+    boosted peak with an ``[armature]``, are not modelled with it),
     and with a supply that cannot sink the returned
     energy, the bulk capacitance. (The supply's ``sink`` and
     ``capacitance`` keys mean nothing to the other topologies, which return no energy.)"""
@@ -1639,13 +1640,14 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
     if hold.regulation == "current" and hold.fast_fraction > 0:
         why = ("a flux-linkage curve with an eddy term (coil.flux_current with coil.eddy_resistance)"
                if coil.flux_current and coil.eddy_resistance else
-               "a boosted peak (supply.boost)" if supply.boosted else "")
+               "a boosted peak and an [armature] together (supply.boost with [armature])"
+               if supply.boosted and armature is not None else "")
         if why:
             raise InputError(source, "hold.fast_fraction", f"{hold.fast_fraction:g} with hold.mode = "
                              f"\"current\" and {why}: a full bridge's current-mode mixed decay is "
-                             "modelled on a linear coil, an eddy term or a curve (not both), on a "
-                             "stiff or a drooping main supply, an [armature] too, no boost; expected "
-                             "0 or the key left out (or a fixed, supply-table or closed-loop hold)")
+                             "modelled on a linear coil, an eddy term or a curve (not both; an "
+                             "[armature] or a boosted peak too, not both); expected 0 or the key left "
+                             "out (or a fixed, supply-table or closed-loop hold)")
     if not supply.sink and not supply.capacitance > 0:
         raise InputError(source, "supply.capacitance", "missing: with sink = false the returned "
                          "energy lands on the bulk capacitance, expected its value (e.g. \"470 uF\")")

@@ -395,51 +395,44 @@ def evaluate_current(drive: Drive, th: Thresholds, supply, ambient, r_factor, l_
 
 def fast_pulses(drive: Drive, th: Thresholds, lp, cm: CurrentModeSteadyState) -> tuple:
     """A full bridge's current-mode mixed decay on a drooping bus that sinks (a linear
-    coil, a curve or an eddy term): ``(t_fast, T)`` per point, each period's fast part at
-    most ``t_fast`` s and the periods at least ``T`` s long whatever the bus does, for
-    :func:`coildrive.model.bus_decay.mixed_hold_rise` (its bound grows with ``t_fast`` and
-    shrinks with ``T``). The bus stays within ``R_s i_top`` of the source (``C du/dt = -u /
-    R_s + j`` with ``|j| <= i_top``, the coil's top: with an eddy term the larger of the
-    magnetising and the sensed top), so every on-time is at least the rise at ``V_hi = V_s +
-    R_s i_top`` from the highest bottom to the lowest end: hysteretic, from the lower
-    threshold (the off-time ends at or below it) to the upper, and ``T`` that plus the
-    one-shot (``t_fast``, cut short where the lower threshold comes first: a shorter pulse
-    in a shorter period bounds less); the fixed off-time, from the decay with nothing
-    opposing through the whole off-time (the bus stays above ``-2 V_d``: ``V_f >= 0``, and
-    a slower decay leaves a higher bottom), and ``T`` that plus ``t_off``, ``t_fast =
-    fast_fraction x t_off``. A curve's segments are its quadrature (:mod:`coildrive.model.rl`
-    hands over). With an eddy term the state is the magnetising current and the thresholds
-    are sensed: the on-time ends at the upper (peak) threshold's magnetising current at
-    ``V_hi`` (the lowest), the hysteretic off-time at most at the lower threshold's met in
-    the fast part with ``V_f = V_hi + 2 V_d`` (the highest; the slow part's is lower), and
-    the fixed off-time's decay starts from the top at ``V_lo = V_s - R_s i_top`` (the
-    highest). Where the threshold is out of reach (no switching) no fast part."""
+    coil, a curve or an eddy term; after a boosted peak too): ``(t_fast, T)`` per point,
+    each period's fast part at most ``t_fast`` s and the periods at least ``T`` s long
+    whatever the bus does, for :func:`coildrive.model.bus_decay.mixed_hold_rise` (its bound
+    grows with ``t_fast`` and shrinks with ``T``).
+
+    The fixed off-time: ``t_fast = fast_fraction x t_off`` and ``T = t_off`` -- coming down
+    from the peak's end above the peak threshold the switch turns straight off again, so a
+    period may hold no on-time at all. Hysteretic: ``t_fast`` the one-shot (cut short
+    where the lower threshold comes first: a shorter pulse in a shorter period bounds
+    less), and ``T`` that plus the on-time's rise from the lower threshold (the off-time
+    ends at or below it) to the upper at the highest bus: the bus stays within ``R_s
+    i_top`` of the source (``C du/dt = -u / R_s + j``, ``|j| <= i_top``), ``i_top`` the most
+    current the coil ever carries -- the hold's top (with an eddy term the larger of the
+    magnetising and the sensed top), the peak's end (at most ``V_s / R_on``; after a
+    boosted peak its end current) -- so ``V_hi = V_s + R_s i_top``. A curve's rise is its
+    quadrature (:mod:`coildrive.model.rl` hands over). With an eddy term the state is the
+    magnetising current and the thresholds are sensed: the on-time ends at the upper
+    threshold's magnetising current at ``V_hi`` (the lowest) and starts at most at the lower
+    threshold's met in the fast part with ``V_f = V_hi + 2 V_d`` (the highest; the slow
+    part's is lower). Where the threshold is out of reach (no switching) no fast part."""
     s, m, ind = drive.supply, lp.mixed, lp.inductance
-    top = np.asarray(cm.i_max, float)
+    reg = np.asarray(cm.regulated, bool)
+    if th.control != "hysteretic":
+        return np.where(reg, m.fraction * th.off_time_s, 0.0), np.where(reg, th.off_time_s, 1.0)
+    top = np.maximum(np.asarray(cm.i_max, float), np.asarray(lp.v_on, float) / np.asarray(lp.r_on, float))
     if cm.terminal_max is not None:
         top = np.maximum(top, np.asarray(cm.terminal_max, float))
+    if s.boosted:
+        from .boost import end_current
+        top = np.maximum(top, end_current(drive, lp))
     v_hi = np.asarray(lp.v_on, float) + s.source_resistance * top
-    hyst = th.control == "hysteretic"
-    end, start = (th.upper_a, th.lower_a) if hyst else (th.upper_a, None)
-    peak = np.asarray(cm.i_max, float)
+    end, start = th.upper_a, th.lower_a
     if isinstance(ind, EddyCoil):   # the thresholds as magnetising currents (docstring)
-        r_e = ind.resistance
-        end = sensed_threshold(th.upper_a, v_hi, lp.r_on, r_e)
-        if hyst:
-            start = sensed_threshold(th.lower_a, -(v_hi + 2.0 * drive.freewheel.diode_drop), m.r_fast, r_e)
-        else:
-            v_lo = np.asarray(lp.v_on, float) - s.source_resistance * top
-            peak = rise_current(th.delay_s, sensed_threshold(th.upper_a, v_lo, lp.r_on, r_e), v_hi, lp.r_on, ind)
-    if hyst:
-        t_fast = th.off_time_s
-        period = rise_time(end, np.minimum(start, end), v_hi, lp.r_on, ind) + t_fast
-    else:
-        t_fast = m.fraction * th.off_time_s
-        bottom = decay_current(th.off_time_s - t_fast, decay_current(t_fast, peak, m.r_fast, 0.0, ind),
-                               lp.r_off, 0.0, ind)
-        period = rise_time(end, np.minimum(bottom, end), v_hi, lp.r_on, ind) + th.off_time_s
-    reg = np.asarray(cm.regulated, bool)
-    return np.where(reg, t_fast, 0.0), np.where(reg, period, 1.0)
+        end = sensed_threshold(th.upper_a, v_hi, lp.r_on, ind.resistance)
+        start = sensed_threshold(th.lower_a, -(v_hi + 2.0 * drive.freewheel.diode_drop), m.r_fast,
+                                 ind.resistance)
+    period = rise_time(end, np.minimum(start, end), v_hi, lp.r_on, ind) + th.off_time_s
+    return np.where(reg, th.off_time_s, 0.0), np.where(reg, period, 1.0)
 
 
 def current_losses(drive: Drive, res: PointResults, cm: CurrentModeSteadyState) -> HoldLosses:
