@@ -76,12 +76,12 @@ def reference(drive, th, v_s, r, scale, periods, release=True, i0=None):
     def coil(kind, i_m, v):
         """(d i_m / dt, terminal current) on the path ``kind`` (on, fast, slow, blocked)."""
         if kind == "blocked":   # the body diodes block: no terminal current, the flux through R_e
-            return (0.0 * i_m if r_e is None else -r_e * i_m / ell), 0.0 * i_m
+            return (0.0 * i_m if r_e is None else -r_e * i_m / ld(i_m)), 0.0 * i_m
         vl, rr = {"on": v, "fast": -(v + 2 * vd), "slow": 0.0 * v}[kind], res[kind]
         if r_e is None:
             return (vl - rr * i_m) / ld(i_m), i_m
         vm = (vl - rr * i_m) / (1.0 + rr / r_e)
-        return vm / ell, i_m + vm / r_e
+        return vm / ld(i_m), i_m + vm / r_e
 
     def feed(v):
         x = (v_s - v) / r_s

@@ -42,13 +42,14 @@ from coildrive.design.hold_current import fast_pulses, steady_state
 from coildrive.model import bus_decay
 from coildrive.model.circuit import loop
 
-COILS = {"curve": ('inductance = "70 mH"\n', "flux_current" + CURVE),
-         "eddy": ('resistance = "24 ohm"', 'resistance = "24 ohm"\neddy_resistance = "2000 ohm"')}
+COILS = {"curve": [('inductance = "70 mH"\n', "flux_current" + CURVE)],
+         "eddy": [('resistance = "24 ohm"', 'resistance = "24 ohm"\neddy_resistance = "2000 ohm"')]}
+COILS["curve+eddy"] = COILS["curve"] + COILS["eddy"]
 
 
 def _drive(folder, kind, control, r_s="2 ohm", cap="1 uF", sink="true"):
     hold = 'frequency = "20 kHz"\nmode = "current"\nmin_frequency = "5 kHz"\n' + HOLDS[control]
-    return bridge_variant(folder, ('frequency = "20 kHz"\n', hold), COILS[kind],
+    return bridge_variant(folder, ('frequency = "20 kHz"\n', hold), *COILS[kind],
                           ('sink = false                 # a diode in the feed: the returned energy stays on the bus\n',
                            f'sink = {sink}\nsource_resistance = "{r_s}"\n'),
                           ('capacitance = "220 uF"', f'capacitance = "{cap}"'),
@@ -56,7 +57,7 @@ def _drive(folder, kind, control, r_s="2 ohm", cap="1 uF", sink="true"):
 
 
 @pytest.mark.parametrize("kind, control", [("curve", "off_time"), ("eddy", "off_time"),
-                                           ("eddy", "hysteretic")])
+                                           ("eddy", "hysteretic"), ("curve+eddy", "hysteretic")])
 def test_hold_rise_bound_against_solve_ivp(tmp_path, kind, control):
     """A supply that sinks, 2 ohm and 1 uF (``R_s C`` = 2 us, fast against the period):
     the highest bus over 12 periods of the hold at the nominal point (20 degC: R_ref, the

@@ -43,13 +43,16 @@ def reference(control, v, r_on, r_f, v_f, r_s, ell, r_e, lo, hi, t_off, t_fast, 
     settled orbit by ``solve_ivp`` (module docstring). ``y = (i_m, int i, int v_m^2/R_e)``;
     off-time control: ``t_off`` s off, the first ``t_fast`` s fast; hysteretic: fast for
     the one-shot's ``t_fast`` s or to ``lo`` A sensed, then slow to ``lo``; ``delay`` s
-    run-on past each threshold."""
+    run-on past each threshold. ``ell``: the branch's H, or its incremental inductance
+    ``L_d(i_m)`` (H, a callable: a flux-linkage curve)."""
     from scipy.integrate import solve_ivp
+
+    ind = ell if callable(ell) else (lambda _: ell)
 
     def branch(v_loop, r):   # KVL + KCL solved for v_m
         def rhs(_, y):
             vm = (v_loop - r * y[0]) / (1.0 + r / r_e)
-            return [vm / ell, y[0] + vm / r_e, vm * vm / r_e]
+            return [vm / ind(y[0]), y[0] + vm / r_e, vm * vm / r_e]
         return rhs
 
     def sensed(v_loop, r, level, direction):
@@ -59,7 +62,7 @@ def reference(control, v, r_on, r_f, v_f, r_s, ell, r_e, lo, hi, t_off, t_fast, 
         return event
 
     def blocked(_, y):   # the body diodes block: i = 0, v_m = -R_e i_m
-        return [-r_e * y[0] / ell, 0.0, r_e * y[0] ** 2]
+        return [-r_e * y[0] / ind(y[0]), 0.0, r_e * y[0] ** 2]
 
     def run(rhs, span, y, events=None):
         s = solve_ivp(rhs, (0.0, span), y, events=events, **OPTS)
