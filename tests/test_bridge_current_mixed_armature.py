@@ -59,6 +59,16 @@ def _fast(drive, supply, temp, th, r_factor=1.0, l_factor=1.0):
     return float(f.r_off[0]), float(f.v_off[0]), t_f
 
 
+def _simulated(path, tmp_path, supply: str, temp: str, hold: str):
+    """`coildrive simulate` (a subprocess) of ``path``: ``(columns, time s, switch_on)``."""
+    csv = tmp_path / "w.csv"
+    r = run_cli("simulate", str(path), "--supply", supply, "--coil-temp", temp, "--hold-time", hold,
+                "--csv", str(csv))
+    assert r.returncode == 0, r.stderr
+    w = np.genfromtxt(csv, delimiter=",", names=True)
+    return w, w["time_s"], w["switch_on"]
+
+
 def test_simulate_csv_against_solve_ivp(designed, tmp_path):
     """`coildrive simulate` (a subprocess) at 24 V, 20 degC, 8 ms of hold: the seat, every
     switching edge of the hold within 1e-9 s and the open stop within 1e-6 against solve_ivp
@@ -122,13 +132,48 @@ def test_on_the_drooping_bus_the_release_starts_above_the_source(tmp_path):
     high, high0 = d.supply.highest_bus_v, slow.supply.highest_bus_v
     print(f"highest bus {high:.5g} V (mixed) against {high0:.5g} V (slow)")
     assert high > high0 + 0.01
-    csv = tmp_path / "w.csv"
-    r = run_cli("simulate", str(path), "--supply", "28", "--coil-temp", "-10", "--hold-time", "4 ms",
-                "--csv", str(csv))
-    assert r.returncode == 0, r.stderr
-    w = np.genfromtxt(csv, delimiter=",", names=True)
-    t, on = w["time_s"], w["switch_on"]
+    w, t, on = _simulated(path, tmp_path, "28", "-10", "4 ms")
     off = t[np.flatnonzero(np.diff(on) != 0)][-1]
     hold = (t > d.pull_in.peak_time_s) & (t < off)
     assert np.sum(hold & (w["high_a_on"] + w["low_a_on"] + w["high_b_on"] + w["low_b_on"] == 0)) > 100
     assert float(w["bus_v"][t > off].max()) > 28.0 + 0.1
+
+
+def test_an_eddy_term_against_solve_ivp(tmp_path):
+    """With a 2 kohm eddy term, hysteretic: at the worst pull-in corner the hold's terminal
+    mean, duty and magnetising RMS on the seated coil within 1e-6, and the release within
+    1e-5, of solve_ivp of Kirchhoff's laws with the armature (tests/test_armature_current_mode_eddy.py's
+    ``reference``, the fast part a third path blocking at the terminal current's zero);
+    `simulate`'s switching edges at 24 V, 20 degC within 1e-8 s of the same, the fast parts
+    all four open."""
+    from test_armature_current_mode_eddy import reference as eddy_reference
+
+    path = _bridge_file(tmp_path)
+    path.write_text(path.read_text().replace('mode = "current"\n', 'mode = "current"\n' + CONTROLS["hysteretic"])
+                    .replace('resistance = "24 ohm"', 'resistance = "24 ohm"\neddy_resistance = "2000 ohm"', 1))
+    d = design(load_drive(path))
+    drive, th = d.drive, d.hold.thresholds
+    assert drive.coil.eddy_resistance == 2000.0 and th.delay_s == 0.0, "precondition"
+    grid, k = corner_grid(drive), d.worst_corner_index
+    c = d.corners[k]
+    rf, lf = float(grid.r_factor[k]), float(grid.l_factor[k])
+    fast = _fast(drive, c.supply_v, c.coil_temp_c, th, rf, lf)
+    ref = eddy_reference(_point(drive, c.supply_v, c.coil_temp_c, rf, lf), 2000.0, th.lower_a, th.upper_a,
+                         d.pull_in.peak_time_s, 10e-3, release=fast[:2], fast=fast)
+    row = d.to_dict()["corners"][k]
+    assert row["armature_status"] == "seated" and row["release_status"] == "opens"
+    for name, want in (("hold_mean_current_a", ref["mean"]), ("hold_duty", ref["duty"])):
+        print(f"eddy: {name} {row[name]:.8g} vs {want:.8g} ({row[name] / want - 1:+.1e})")
+        assert row[name] == pytest.approx(want, rel=1e-6), name
+    print(f"eddy: release {row['release_time_s']:.8g} vs {ref['open'] - ref['off']:.8g} s")
+    assert row["release_time_s"] == pytest.approx(ref["open"] - ref["off"], rel=1e-5)
+    assert row["hold_force_margin"] == pytest.approx(ref["mag_rms"] / ref["stay"], rel=1e-6)
+    w, t, on = _simulated(path, tmp_path, "24", "20", "10 ms")
+    fast = _fast(drive, 24.0, 20.0, th)
+    ref = eddy_reference(_point(drive, 24.0, 20.0), 2000.0, th.lower_a, th.upper_a, d.pull_in.peak_time_s, 10e-3,
+                         release=fast[:2], fast=fast)
+    edges = t[np.flatnonzero(np.diff(on) != 0)]
+    print(f"eddy: {edges.size} edges, largest difference {np.max(np.abs(edges - ref['edges'])):.2e} s")
+    assert edges.size == ref["edges"].size > 50 and np.max(np.abs(edges - ref["edges"])) < 1e-8
+    hold = (t > d.pull_in.peak_time_s) & (t < edges[-1])
+    assert np.sum(hold & (w["high_a_on"] + w["low_a_on"] + w["high_b_on"] + w["low_b_on"] == 0)) > 50
