@@ -1606,9 +1606,9 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
     a fixed, supply-table or closed-loop hold, or a current-mode hold (the fixed off-time:
     each off-time's first ``fast_fraction`` fast, the rest slow; hysteretic: each off-time
     fast for a fixed one-shot time, ``fast_fraction`` x the slow-decay off-time at the
-    nominal point; a linear coil on a stiff or a drooping main supply, or an eddy term or a
-    flux-linkage curve (not both) on a stiff one; no boost, no ``[armature]`` -- a curve
-    with an eddy term, either on the drooping bus, a boosted peak and a moving armature are
+    nominal point; a linear coil, an eddy term, a flux-linkage curve or both, on a stiff
+    or a drooping main supply, an ``[armature]`` too (seated in the hold), or after a
+    boosted peak (the hold from the hand-over) -- a boosted peak with an ``[armature]`` is
     not modelled with it),
     and with a supply that cannot sink the returned
     energy, the bulk capacitance. (The supply's ``sink`` and
@@ -1628,21 +1628,12 @@ def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Free
         raise InputError(fw_origins.get("split_decay", source), "freewheel.split_decay",
                          "a full bridge decays slowly in the hold and fast at the release by itself: "
                          "expected split_decay left out")
-    if hold.regulation == "current" and hold.fast_fraction > 0:
-        why = ("a flux-linkage curve with an eddy term (coil.flux_current with coil.eddy_resistance)"
-               if coil.flux_current and coil.eddy_resistance else
-               "a flux-linkage curve or an eddy term on the drooping bus (coil.flux_current or "
-               "coil.eddy_resistance with supply.source_resistance)"
-               if (coil.flux_current or coil.eddy_resistance) and supply.droops else
-               "a boosted peak (supply.boost)" if supply.boosted else
-               "an [armature]" if armature is not None else "")
-        if why:
-            raise InputError(source, "hold.fast_fraction", f"{hold.fast_fraction:g} with hold.mode = "
-                             f"\"current\" and {why}: a full bridge's current-mode mixed decay is "
-                             "modelled on a linear coil on a stiff or a drooping main supply, or with "
-                             "an eddy term or a curve (not both) on a stiff one, no boost, no "
-                             "[armature]; expected 0 or the key left out (or a fixed, supply-table "
-                             "or closed-loop hold)")
+    if hold.regulation == "current" and hold.fast_fraction > 0 and supply.boosted and armature is not None:
+        raise InputError(source, "hold.fast_fraction", f"{hold.fast_fraction:g} with hold.mode = "
+                         "\"current\" and a boosted peak and an [armature] together (supply.boost with "
+                         "[armature]): a full bridge's current-mode mixed decay is modelled with an "
+                         "[armature] or after a boosted peak, not both; expected 0 or the key left out "
+                         "(or a fixed, supply-table or closed-loop hold)")
     if not supply.sink and not supply.capacitance > 0:
         raise InputError(source, "supply.capacitance", "missing: with sink = false the returned "
                          "energy lands on the bulk capacitance, expected its value (e.g. \"470 uF\")")

@@ -62,12 +62,16 @@ def hyst(tmp_path_factory):
 
 
 def reference(g: dict, lower: float, upper: float, t_peak: float, hold_time: float,
-              off_time: float = 0.0, release: tuple[float, float] | None = None) -> dict:
+              off_time: float = 0.0, release: tuple[float, float] | None = None,
+              fast: tuple[float, float, float] | None = None) -> dict:
     """solve_ivp of the equations of the module docstring, piece by piece (``g``: one
     point's parameters, SI). ``off_time`` > 0: the fixed off-time control (off for that
     long, on to ``upper``, the peak threshold); ``release``: the final release's
     ``(R_off, V_off)`` when it takes another path than the hold's off-times (split
-    decay's fast path, the bypass open from the final turn-off)."""
+    decay's fast path, the bypass open from the final turn-off); ``fast``: a full bridge's
+    mixed decay ``(R_f, V_f, t_f)``, each off-time first ``t_f`` s on that path (all four
+    open: ``dlam/dt = -(R_f i + V_f)`` while ``i > 0``; hysteretic, to the lower threshold
+    if it comes first), then the rest on the hold's own."""
     from scipy.integrate import solve_ivp
 
     lc, beta, stroke = g["l_closed"], g["beta"], g["stroke"]
@@ -89,12 +93,26 @@ def reference(g: dict, lower: float, upper: float, t_peak: float, hold_time: flo
     segs = []               # (start s, end s, switch on, dense solution)
     seated = event(lambda t, y: pull(y[0]) - opening(0.0), -1)
     while True:
-        if off_time > 0:   # off for the fixed time (the diode blocks at zero: none here)
-            s = solve_ivp(resting(0.0, False), (t, t + off_time), [lam], dense_output=True,
+        t0, low = t, False
+        if fast is not None:   # the fast part (the body diodes block at zero: none here)
+            path[0] = fast[:2]
+            span = fast[2] if off_time <= 0 else min(fast[2], off_time)
+            s = solve_ivp(resting(0.0, False), (t, t + span), [lam], dense_output=True,
+                          events=[seated] + ([event(lambda t, y: cur(y[0], 0.0) - lower, -1)]
+                                             if off_time <= 0 else []), **TOL)
+            assert len(s.t_events[0]) == 0, "the armature lets go in the hold"
+            low = off_time <= 0 and len(s.t_events[1]) > 0
+            segs.append((t, s.t[-1], False, s.sol))
+            t, lam = s.t[-1], s.y[0, -1]
+            path[0] = (g["r_off"], g["v_off"])
+        if low:   # hysteretic: the lower threshold in the fast part
+            pass
+        elif off_time > 0:   # off for the fixed time (the diode blocks at zero: none here)
+            s = solve_ivp(resting(0.0, False), (t, t0 + off_time), [lam], dense_output=True,
                           events=seated, **TOL)
             assert len(s.t_events[0]) == 0, "the armature lets go in the hold"
-            segs.append((t, t + off_time, False, s.sol))
-            t, lam = t + off_time, s.y[0, -1]
+            segs.append((t, t0 + off_time, False, s.sol))
+            t, lam = t0 + off_time, s.y[0, -1]
         else:
             s = solve_ivp(resting(0.0, False), (t, t + 1.0), [lam], dense_output=True,
                           events=[event(lambda t, y: cur(y[0], 0.0) - lower, -1), seated], **TOL)
@@ -110,14 +128,16 @@ def reference(g: dict, lower: float, upper: float, t_peak: float, hold_time: flo
         if t >= t_peak + hold_time:
             break
     t_off = t
-    assert len(segs) >= 4, "the hold must run a whole period after the first off-time"
-    # one settled period: the last on-time and the off-time before it
-    (a, b, _, off_sol), (_, c, _, on_sol) = segs[-2], segs[-1]
-    x_off, x_on = np.linspace(a, b, 100001), np.linspace(b, c, 100001)
-    charge = (np.trapezoid(cur(off_sol(x_off)[0], 0.0), x_off)
-              + np.trapezoid(cur(on_sol(x_on)[0], 0.0), x_on))
-    square = (np.trapezoid(cur(off_sol(x_off)[0], 0.0) ** 2, x_off)
-              + np.trapezoid(cur(on_sol(x_on)[0], 0.0) ** 2, x_on))
+    ons = [k for k, seg in enumerate(segs) if seg[2]]
+    assert len(ons) >= 2, "the hold must run a whole period after the first off-time"
+    # one settled period: the last on-time and the off-time (its parts) before it
+    period = segs[ons[-2] + 1:]
+    a, b, c = period[0][0], period[-1][0], period[-1][1]
+    charge = square = 0.0
+    for lo, hi, _, sol in period:
+        x = np.linspace(lo, hi, 100001)
+        charge += np.trapezoid(cur(sol(x)[0], 0.0), x)
+        square += np.trapezoid(cur(sol(x)[0], 0.0) ** 2, x)
     # the release: seated until the force falls to spring + load, free to the open stop
     if release is not None:
         path[0] = release
@@ -133,7 +153,8 @@ def reference(g: dict, lower: float, upper: float, t_peak: float, hold_time: flo
                 rms=float(np.sqrt(square / (c - a))),
                 stay=float(np.sqrt(2 * opening(0.0) * lc / beta)) / lc,   # pull = spring + load seated
                 duty=(c - b) / (c - a), period=c - a, let_go=t_let, open=s.t_events[0][0],
-                edges=np.array([seg[0] for seg in segs] + [t_off]), segments=segs)
+                edges=np.array([seg[0] for k, seg in enumerate(segs) if k == 0 or seg[2] != segs[k - 1][2]]
+                               + [t_off]), segments=segs)
 
 
 
@@ -431,32 +452,44 @@ def test_bridge_simulate_csv_against_solve_ivp(tmp_path):
     path. Measured: 197 edges within 7e-11 s, seat 3e-8, open 2e-8 relative."""
     path = _bridge_file(tmp_path)
     d = make_design(load_drive(path))
+    assert _point(d.drive, 24.0, 20.0)["v_off"] == 0.0, "precondition: the hold's off-times are the slow decay"
+    states = bridge_csv_against_solve_ivp(path, d, tmp_path)
+    assert states == {(1, 1, 0, 0, 1), (0, 0, 1, 0, 1)}, states
+
+
+def bridge_csv_against_solve_ivp(path: Path, d, tmp_path: Path, fast: float = 0.0) -> set:
+    """`simulate --csv` of the bridge drive ``path`` (design ``d``) at 24 V with a 20 degC
+    coil, 8 ms of hold, against :func:`reference` (scipy solve_ivp, DOP853): the seat, every
+    switching edge within 1e-9 s, the open stop; the release opens all four. ``fast``: a
+    mixed decay's fast part, s (each off-time's first, on the release's path). Returns the
+    hold's switch states ``{(switch_on, Q1, Q2, Q3, Q4)}``."""
     th = d.hold.thresholds
-    assert th.control == "hysteretic" and th.delay_s == 0.0, "precondition: the reference's comparator"
+    assert th.delay_s == 0.0, "precondition: the reference's comparator"
     csv = tmp_path / "w.csv"
     r = run_cli("simulate", str(path), "--supply", "24", "--coil-temp", "20", "--hold-time", "8 ms",
                 "--csv", str(csv))
     assert r.returncode == 0, r.stderr
     head = csv.read_text().split("\n", 1)[0].split(",")
     a = np.loadtxt(csv, delimiter=",", skiprows=1)
-    t, i, on, x, ha, la, hb, lb = (a[:, head.index(n)] for n in (
-        "time_s", "current_a", "switch_on", "position_m", "high_a_on", "low_a_on", "high_b_on", "low_b_on"))
+    t, on, x, ha, la, hb, lb = (a[:, head.index(n)] for n in (
+        "time_s", "switch_on", "position_m", "high_a_on", "low_a_on", "high_b_on", "low_b_on"))
     g = _point(d.drive, 24.0, 20.0)
-    assert g["v_off"] == 0.0, "precondition: the hold's off-times are the slow decay"
-    fast = loop(d.drive, np.array([24.0]), np.array([20.0]), path="release")
-    ref = reference(g, th.lower_a, th.upper_a, d.pull_in.peak_time_s, 8e-3,
-                    release=(float(fast.r_off[0]), float(fast.v_off[0])))   # scipy solve_ivp (DOP853)
+    rel = loop(d.drive, np.array([24.0]), np.array([20.0]), path="release")
+    rel = (float(rel.r_off[0]), float(rel.v_off[0]))
+    hyst = th.control == "hysteretic"
+    ref = reference(g, th.lower_a if hyst else 0.0, th.upper_a, d.pull_in.peak_time_s, 8e-3,
+                    0.0 if hyst else th.off_time_s, release=rel,
+                    fast=(*rel, fast) if fast > 0 else None)   # scipy solve_ivp (DOP853)
     assert t[np.argmax(x <= 0.0)] == pytest.approx(ref["seat"], rel=1e-6)
     edges = t[np.flatnonzero(np.diff(on) != 0)]
     assert edges.size == ref["edges"].size > 100, (edges.size, ref["edges"].size)
+    print(f"{th.control}: {edges.size} edges, largest difference {np.max(np.abs(edges - ref['edges'])):.2e} s")
     assert np.max(np.abs(edges - ref["edges"])) < 1e-9
     off = edges[-1]
     assert t[np.flatnonzero((t > off) & (x >= d.drive.armature.stroke))[0]] == pytest.approx(ref["open"], rel=1e-6)
-    # the phases: on Q1 + Q4, the hold's off-times Q2 + Q4, the release all four open
-    hold = (t > d.pull_in.peak_time_s) & (t < off)
-    states = set(zip(on[hold], ha[hold], la[hold], hb[hold], lb[hold]))
-    assert states == {(1, 1, 0, 0, 1), (0, 0, 1, 0, 1)}, states
     assert not np.any((ha + la + hb + lb)[t > off + 1e-9]), "the release opens all four"
+    hold = (t > d.pull_in.peak_time_s) & (t < off)
+    return set(zip(on[hold], ha[hold], la[hold], hb[hold], lb[hold]))
 
 
 def test_bridge_on_the_drooping_bus_simulates(tmp_path):
@@ -501,6 +534,15 @@ def test_bridge_on_the_drooping_bus_firmware_in_the_loop(tmp_path):
     design's release); `check` passes at 28 V with a cold coil and at 24 V with a hot one,
     two actuations each (the second starts from the bus the first left: it must read back
     at the supply, not SUPPLY_HIGH). Plumbing: the device's physics is the design's."""
+    d = make_design(load_drive(_bridge_file(tmp_path, droop=True)))
+    for dev, _ in bridge_firmware_checks(d, tmp_path, ((28.0, -10.0), (24.0, 60.0))):
+        assert sum("release into the bus" in e.text for e in dev._log) == 2, dev._log
+
+
+def bridge_firmware_checks(d, tmp_path: Path, corners) -> list:
+    """gcc: the compiled reference driver of design ``d`` in the loop at each ``(supply V,
+    coil degC)`` of ``corners``, 30 ms holds, two actuations each: `check` passes. Returns
+    ``[(device, check report)]``."""
     require_tool("gcc")
     from test_current_mode_bench import capture_of
 
@@ -511,19 +553,20 @@ def test_bridge_on_the_drooping_bus_firmware_in_the_loop(tmp_path):
     from coildrive.codegen.driver import render_driver
     from coildrive.codegen.host_build import build_firmware
 
-    d = make_design(load_drive(_bridge_file(tmp_path, droop=True)))
     fw = tmp_path / "fw"
     fw.mkdir()
     for name, text in render_driver(d, "coil").items():
         (fw / name).write_text(text)
     lib = build_firmware(fw, d, cache=tmp_path / "cache")
-    for supply, temp in ((28.0, -10.0), (24.0, 60.0)):
+    out = []
+    for supply, temp in corners:
         dev = FirmwareDevice(d, lib, DeviceOptions(supply=supply, coil_temp=temp, noise_codes=1, seed=3,
                                                    hold_time=0.03))
         dec, msgs, now = FrameDecoder(), [], 0.0
         while dev._t < 0.05 + 2 * dev.period:
             now += 0.01
             msgs += dec.feed(dev.read(now))
-        assert sum("release into the bus" in e.text for e in dev._log) == 2, dev._log
         rep = check_capture(capture_of(msgs, tmp_path / f"{supply:g}.cdcap"), d, coil_temp=temp)
         assert rep.ok, [(i.name, i.status, i.detail) for i in rep.items if i.status == "FAIL"]
+        out.append((dev, rep))
+    return out

@@ -64,11 +64,15 @@ def hyst(tmp_path_factory):
 
 
 def reference(g: dict, r_e: float, lower: float, upper: float, t_peak: float, hold_time: float,
-              off_time: float = 0.0, release: tuple[float, float] | None = None) -> dict:
+              off_time: float = 0.0, release: tuple[float, float] | None = None,
+              fast: tuple[float, float, float] | None = None) -> dict:
     """solve_ivp of the equations of the module docstring, piece by piece (``g``: one
     point's parameters, SI; ``r_e`` ohm). ``off_time`` > 0: the fixed off-time control;
     ``release``: the final release's ``(R_off, V_off)`` when it takes another path than
-    the hold's off-times (a full bridge's fast decay)."""
+    the hold's off-times (a full bridge's fast decay); ``fast``: a full bridge's mixed
+    decay ``(R_f, V_f, t_f)``, each off-time first ``t_f`` s on that path (all four open,
+    blocking at the terminal current's zero; hysteretic, to the lower threshold sensed if
+    it comes first), then the rest on the hold's own (the sensed current stepping there)."""
     from scipy.integrate import solve_ivp
 
     stroke = g["stroke"]
@@ -95,11 +99,27 @@ def reference(g: dict, r_e: float, lower: float, upper: float, t_peak: float, ho
     # the hold, seated: the comparator on the terminal current
     t = t_peak
     segs = []               # (start s, end s, switch on, dense solution)
+    seg_paths = []          # each off segment's (R_off, V_off), None for an on segment
     seated = event(lambda t, y: pull(y[0]) - opening(0.0), -1)
     while True:
-        if off_time > 0:
-            s = solve_ivp(resting(0.0, False), (t, t + off_time), [lam], dense_output=True, events=seated, **TOL)
-            end = t + off_time
+        t0, low = t, False
+        if fast is not None:   # all four open first
+            path[0] = fast[:2]
+            span = fast[2] if off_time <= 0 else min(fast[2], off_time)
+            s = solve_ivp(resting(0.0, False), (t, t + span), [lam], dense_output=True,
+                          events=[seated] + ([event(lambda t, y: terminal(y[0], 0.0, False) - lower, -1)]
+                                             if off_time <= 0 else []), **TOL)
+            assert len(s.t_events[0]) == 0, "the armature lets go in the hold"
+            low = off_time <= 0 and len(s.t_events[1]) > 0   # hysteretic: the threshold met in it
+            segs.append((t, s.t[-1], False, s.sol))
+            seg_paths.append(fast[:2])
+            t, lam = s.t[-1], float(s.y[0, -1])
+            path[0] = (g["r_off"], g["v_off"])
+        if low:
+            s = None
+        elif off_time > 0:
+            s = solve_ivp(resting(0.0, False), (t, t0 + off_time), [lam], dense_output=True, events=seated, **TOL)
+            end = t0 + off_time
         elif terminal(lam, 0.0, False) > lower:
             s = solve_ivp(resting(0.0, False), (t, t + 1.0), [lam], dense_output=True,
                           events=[event(lambda t, y: terminal(y[0], 0.0, False) - lower, -1), seated], **TOL)
@@ -109,26 +129,37 @@ def reference(g: dict, r_e: float, lower: float, upper: float, t_peak: float, ho
         if s is not None:
             assert len(s.t_events[-1]) == 0, "the armature lets go in the hold"
             segs.append((t, end, False, s.sol))
+            seg_paths.append((g["r_off"], g["v_off"]))
             t, lam = end, float(s.sol(end)[0])
         if terminal(lam, 0.0, True) < upper:
             s = solve_ivp(resting(0.0, True), (t, t + 1.0), [lam], dense_output=True,
                           events=event(lambda t, y: terminal(y[0], 0.0, True) - upper, 1), **TOL)
             segs.append((t, s.t_events[0][0], True, s.sol))
+            seg_paths.append(None)
             t, lam = s.t_events[0][0], s.y_events[0][0][0]
         if t >= t_peak + hold_time:
             break
     t_off = t
-    assert len(segs) >= 4, "the hold must run a whole period after the first off-time"
-    # one settled period: the last off-time and on-time (terminal and magnetising)
-    (a, b, was_on, off_sol), (_, c, is_on, on_sol) = segs[-2], segs[-1]
-    assert is_on and not was_on and segs[-3][2], "the hold has settled on its band"
-    x_off, x_on = np.linspace(a, b, 200001), np.linspace(b, c, 200001)
-    lam_off, lam_on = off_sol(x_off)[0], on_sol(x_on)[0]
-    i_off = np.array([terminal(v, 0.0, False) for v in lam_off])
-    i_on = (v_on + r_e * cur(lam_on, 0.0)) / (r_on + r_e)
-    mean = (np.trapezoid(i_off, x_off) + np.trapezoid(i_on, x_on)) / (c - a)
-    mag_rms = np.sqrt((np.trapezoid(cur(lam_off, 0.0) ** 2, x_off)
-                       + np.trapezoid(cur(lam_on, 0.0) ** 2, x_on)) / (c - a))
+    ons = [k for k, seg in enumerate(segs) if seg[2]]
+    assert len(ons) >= 2 and segs[-1][2], "the hold must run a whole period after the first off-time"
+    # one settled period: the last on-time and the off-time (its parts) before it (terminal
+    # and magnetising; the off parts' paths in order: fast first with mixed decay)
+    period = segs[ons[-2] + 1:]
+    a, b, c = period[0][0], period[-1][0], period[-1][1]
+    charge = square = 0.0
+    for (lo, hi, is_on, sol), pth in zip(period, seg_paths[ons[-2] + 1:]):
+        x = np.linspace(lo, hi, 200001)
+        lam_x = sol(x)[0]
+        if is_on:
+            i_x = (v_on + r_e * cur(lam_x, 0.0)) / (r_on + r_e)
+        else:
+            path[0] = pth
+            i_x = np.array([terminal(v, 0.0, False) for v in lam_x])
+        charge += np.trapezoid(i_x, x)
+        square += np.trapezoid(cur(lam_x, 0.0) ** 2, x)
+    path[0] = (g["r_off"], g["v_off"])
+    mean = charge / (c - a)
+    mag_rms = np.sqrt(square / (c - a))
     # the release from the band's top: seated until the pull falls to spring + load, free
     # to the open stop (the freewheel blocking on the way: then the flux through R_e)
     if release is not None:
@@ -146,7 +177,8 @@ def reference(g: dict, r_e: float, lower: float, upper: float, t_peak: float, ho
     return dict(move=t_move, seat=t_seat, off=t_off, mean=mean, mag_rms=float(mag_rms),
                 stay=float(np.sqrt(2 * opening(0.0) * g["l_closed"] / g["beta"])) / g["l_closed"],
                 duty=(c - b) / (c - a), period=c - a, let_go=t_let, zero=t_zero, open=s.t_events[0][0],
-                edges=np.array([seg[0] for seg in segs] + [t_off]), segments=segs)
+                edges=np.array([seg[0] for k, seg in enumerate(segs) if k == 0 or seg[2] != segs[k - 1][2]]
+                               + [t_off]), segments=segs)
 
 
 def _at_worst(d) -> tuple[dict, dict]:

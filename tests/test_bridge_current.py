@@ -232,10 +232,10 @@ def test_virtual_device_runs_it_and_check_passes(hysteretic, tmp_path):
     device_checks(design(hysteretic[0]), tmp_path)
 
 
-def device_checks(d, tmp_path):
+def device_checks(d, tmp_path, bad: dict | None = None):
     """The virtual device of design ``d`` at the low supply with the hottest coil and the
     high supply cold: `check` passes the hold and the fast release; a coil 40 % over its
-    resistance fails (the check can fail)."""
+    resistance fails (the check can fail; ``bad``: another coil's scales that fail)."""
     from test_emulator_device import capture_of, run as run_device
     from coildrive.bench.check import check_capture
     from coildrive.bench.device import DeviceOptions, VirtualDevice
@@ -254,7 +254,7 @@ def device_checks(d, tmp_path):
         assert rep.ok, [(i.name, i.status, i.detail) for i in rep.items if i.status == "FAIL"]
         for name in ("hold_mean", "release_time"):
             assert rows[name].status == "pass", (supply, temp, name, rows[name].detail)
-    assert not checked(drive.supply.min, drive.thermal.max_coil_temp, resistance_scale=1.4).ok
+    assert not checked(drive.supply.min, drive.thermal.max_coil_temp, **(bad or dict(resistance_scale=1.4))).ok
 
 
 def test_tune_refuses_it_in_one_line(hysteretic):

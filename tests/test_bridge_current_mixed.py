@@ -298,29 +298,23 @@ def test_virtual_device_runs_it_and_check_passes(mixed, tmp_path):
     device_checks(design(mixed[0]), tmp_path)
 
 
-@pytest.mark.parametrize("what", ["curve-eddy", "curve-droop", "armature"])
-def test_what_current_mode_mixed_decay_refuses_is_one_line(tmp_path, what):
-    """A curve with an eddy term, a curve on the drooping bus, an [armature]: one line naming
-    the key (an eddy term, the drooping bus and a curve alone are designed:
-    tests/test_bridge_current_mixed_eddy.py, _droop.py, _curve.py)."""
+def test_what_current_mode_mixed_decay_refuses_is_one_line(tmp_path):
+    """A boosted peak with an [armature]: one line naming the key (an eddy term, a curve,
+    both, the drooping bus, an [armature], a boosted peak are designed:
+    tests/test_bridge_current_mixed_eddy.py, _droop.py, _curve.py, _droop_coils.py,
+    _armature.py, test_boost_bridge_current_mixed.py)."""
     from test_bridge_armature import ARMATURE
-    from test_flux_bridge import CURVE
 
-    curve = ('inductance = "70 mH"\n', "flux_current" + CURVE)
-    edits, fragment = {
-        "curve-eddy": ((curve, ('resistance = "24 ohm"', 'resistance = "24 ohm"\neddy_resistance = "300 ohm"')),
-                       "flux-linkage curve with an eddy term"),
-        "curve-droop": ((curve, ("[supply]\n", '[supply]\nsource_resistance = "0.5 ohm"\n')),
-                        "on the drooping bus"),
-        "armature": (((("[ambient]\n", ARMATURE + "\n[ambient]\n")),), "[armature]")}[what]
-    path = _variant(tmp_path, (HOLD, HOLD + "fast_fraction = 0.3\n"), *edits)
+    boost = ('capacitor_voltage = "50 V"', 'capacitor_voltage = "50 V"\nboost = "48 V"\n'
+             'boost_capacitance = "100 uF"\nboost_resistance = "0.1 ohm"\nboost_power = "5 W"')
+    path = _variant(tmp_path, (HOLD, HOLD + "fast_fraction = 0.3\n"), boost, ("[ambient]\n", ARMATURE + "\n[ambient]\n"))
     with pytest.raises(InputError) as err:
         load_drive(path)
     line = str(err.value)
-    assert "\n" not in line and "hold.fast_fraction" in line and fragment in line and str(path) in line
-    if what == "curve-eddy":
-        r = run_cli("design", str(path))
-        assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1
+    assert "\n" not in line and "hold.fast_fraction" in line and "a boosted peak and an [armature]" in line
+    assert str(path) in line
+    r = run_cli("design", str(path))
+    assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1 and "Traceback" not in r.stderr
 
 
 @pytest.mark.compiler

@@ -216,8 +216,7 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
         first = None if first_duty is None else np.ravel(first_on_current(lp, end, first_duty, ss.period))
         on_bus = _release_on_bus(drive, flat_rel if lp_rel is not None and lp_rel is not lp else flat,
                                  l_factor, shape, pin, np.ravel(ss.i_max),
-                                 None if lp.mixed is None else (lp.mixed.fraction, np.ravel(
-                                     np.broadcast_to(ss.period, shape))), first)
+                                 None if lp.mixed is None else _fast_pulse(lp, ss, shape), first)
         rel = on_bus.run
     if rel is None:
         rel = (late_release(p, p_rel, np.ravel(ss.i_max), lag) if lag > 0 else
@@ -232,6 +231,16 @@ def _armature_figures(drive: Drive, lp: Loop, l_factor, ss: PwmSteadyState, peak
                            release_from=np.ravel(ss.i_max).copy(), boost=boosted, bus_release=on_bus)
 
 
+def _fast_pulse(lp: Loop, ss: PwmSteadyState, shape) -> tuple:
+    """A mixed-decay hold's ``(longest fast part s, shortest period s)`` per point, flat: a
+    PWM hold's ``fast_fraction x`` its fixed period and that period; a current-mode hold's
+    on a drooping bus as its steady state says (``ss.fast_pulse``:
+    :func:`coildrive.design.hold_current.fast_pulses`, its period moving with the bus)."""
+    t_fast, period = ((lp.mixed.fraction * np.asarray(ss.period, float), ss.period)
+                      if ss.fast_pulse is None else ss.fast_pulse)
+    return tuple(np.ravel(np.broadcast_to(x, shape)) for x in (t_fast, period))
+
+
 def _release_on_bus(drive: Drive, flat_rel: Loop, l_factor, shape, pin, i_max, mixed=None, first=None):
     """A moving armature's release on a full bridge on the drooping bus (a linear coil or
     its curves, an eddy term too; ``supply.sink`` either way): :func:`coildrive.model.armature_bus_release.release_over` from
@@ -243,7 +252,7 @@ def _release_on_bus(drive: Drive, flat_rel: Loop, l_factor, shape, pin, i_max, m
     :func:`~coildrive.model.supply.bus_floor` under it (as
     :func:`coildrive.design.bridge_bus.bus_range`), never below ``-2 V_d``; ``i_max`` and
     the release's currents are magnetising currents with an eddy term. ``mixed``: a
-    mixed-decay hold's ``(fast fraction, period s per point)``; on a supply that sinks its
+    mixed-decay hold's ``(longest fast part s, shortest period s per point)``; on a supply that sinks its
     fast parts return current into the bus, so the starts reach above the source by
     :func:`coildrive.model.bus_decay.mixed_hold_rise` (the current returned at most the
     larger of the terminal top and the magnetising one, as
@@ -281,9 +290,9 @@ def _release_on_bus(drive: Drive, flat_rel: Loop, l_factor, shape, pin, i_max, m
     lowest = np.maximum(np.minimum(low, bus_floor(v_s, s.source_resistance, top + sum(drains))), -v_d2)
     highest = v_s
     if mixed is not None and s.sink:
-        fraction, period = mixed
+        t_fast, period = mixed
         highest = v_s + mixed_hold_rise(s.source_resistance, s.capacitance, np.maximum(top, top_m),
-                                        fraction * period, period)
+                                        t_fast, period)
     return release_over(p_bus, np.where(np.isfinite(i_max), i_max, 0.0), lowest, highest, v_d2, STARTS,
                         sink=s.sink, drains=drains)
 

@@ -59,7 +59,7 @@ from ..config import Drive
 from ..errors import InputError
 from ..model.circuit import full_bridge, loop, split_decay, two_paths
 from ..model.current_mode import (CurrentModeSteadyState, MixedPath, hysteretic_steady_state,
-                                  off_time_steady_state)
+                                  off_time_steady_state, sensed_threshold)
 from ..model.eddy import EddyCoil
 from ..model.flux import FluxCoil
 from ..model.losses import HoldLosses, element_powers
@@ -426,33 +426,44 @@ def in_flight_refused(drive: Drive) -> str | None:
 
 def fast_pulses(drive: Drive, th: Thresholds, lp, cm: CurrentModeSteadyState) -> tuple:
     """A full bridge's current-mode mixed decay on a drooping bus that sinks (a linear
-    coil): ``(t_fast, T)`` per point, each period's fast part at most ``t_fast`` s and the
-    periods at least ``T`` s long whatever the bus does, for
-    :func:`coildrive.model.bus_decay.mixed_hold_rise` (its bound grows with ``t_fast`` and
-    shrinks with ``T``). The bus never rises more than ``R_s i_top`` over the source (``C
-    du/dt = -u / R_s + j`` with ``j <= i_top``), so every on-time is at least the rise at
-    ``V_hi = V_s + R_s i_top`` from the highest bottom: hysteretic, from the lower threshold
-    (the off-time ends at or below it) to the upper, and ``T`` that plus the one-shot
-    (``t_fast``, cut short where the lower threshold comes first: a shorter pulse in a
-    shorter period bounds less); the fixed off-time, from the decay with nothing opposing
-    through the whole off-time (the bus stays above ``-2 V_d``: ``V_f >= 0``), and ``T``
-    that plus ``t_off``, ``t_fast = fast_fraction x t_off``. Where the threshold is out of
-    reach (no switching) no fast part."""
-    s, m = drive.supply, lp.mixed
-    top = np.asarray(cm.i_max, float)
-    v_hi = np.asarray(lp.v_on, float) + s.source_resistance * top
-    ind = np.asarray(lp.inductance, float)
-    if th.control == "hysteretic":
-        t_fast = th.off_time_s
-        t_on = rise_time(th.upper_a, th.lower_a, v_hi, lp.r_on, ind)
-        period = t_on + t_fast
-    else:
-        t_fast = m.fraction * th.off_time_s
-        bottom = top * np.exp(-(t_fast * np.asarray(m.r_fast, float) + (th.off_time_s - t_fast)
-                                * np.asarray(lp.r_off, float)) / ind)
-        period = rise_time(th.upper_a, np.minimum(bottom, th.upper_a), v_hi, lp.r_on, ind) + th.off_time_s
+    coil, a curve or an eddy term; after a boosted peak too): ``(t_fast, T)`` per point,
+    each period's fast part at most ``t_fast`` s and the periods at least ``T`` s long
+    whatever the bus does, for :func:`coildrive.model.bus_decay.mixed_hold_rise` (its bound
+    grows with ``t_fast`` and shrinks with ``T``).
+
+    The fixed off-time: ``t_fast = fast_fraction x t_off`` and ``T = t_off`` -- coming down
+    from the peak's end above the peak threshold the switch turns straight off again, so a
+    period may hold no on-time at all. Hysteretic: ``t_fast`` the one-shot (cut short
+    where the lower threshold comes first: a shorter pulse in a shorter period bounds
+    less), and ``T`` that plus the on-time's rise from the lower threshold (the off-time
+    ends at or below it) to the upper at the highest bus: the bus stays within ``R_s
+    i_top`` of the source (``C du/dt = -u / R_s + j``, ``|j| <= i_top``), ``i_top`` the most
+    current the coil ever carries -- the hold's top (with an eddy term the larger of the
+    magnetising and the sensed top), the peak's end (at most ``V_s / R_on``; after a
+    boosted peak its end current) -- so ``V_hi = V_s + R_s i_top``. A curve's rise is its
+    quadrature (:mod:`coildrive.model.rl` hands over). With an eddy term the state is the
+    magnetising current and the thresholds are sensed: the on-time ends at the upper
+    threshold's magnetising current at ``V_hi`` (the lowest) and starts at most at the lower
+    threshold's met in the fast part with ``V_f = V_hi + 2 V_d`` (the highest; the slow
+    part's is lower). Where the threshold is out of reach (no switching) no fast part."""
+    s, m, ind = drive.supply, lp.mixed, lp.inductance
     reg = np.asarray(cm.regulated, bool)
-    return np.where(reg, t_fast, 0.0), np.where(reg, period, 1.0)
+    if th.control != "hysteretic":
+        return np.where(reg, m.fraction * th.off_time_s, 0.0), np.where(reg, th.off_time_s, 1.0)
+    top = np.maximum(np.asarray(cm.i_max, float), np.asarray(lp.v_on, float) / np.asarray(lp.r_on, float))
+    if cm.terminal_max is not None:
+        top = np.maximum(top, np.asarray(cm.terminal_max, float))
+    if s.boosted:
+        from .boost import end_current
+        top = np.maximum(top, end_current(drive, lp))
+    v_hi = np.asarray(lp.v_on, float) + s.source_resistance * top
+    end, start = th.upper_a, th.lower_a
+    if isinstance(ind, EddyCoil):   # the thresholds as magnetising currents (docstring)
+        end = sensed_threshold(th.upper_a, v_hi, lp.r_on, ind.resistance)
+        start = sensed_threshold(th.lower_a, -(v_hi + 2.0 * drive.freewheel.diode_drop), m.r_fast,
+                                 ind.resistance)
+    period = rise_time(end, np.minimum(start, end), v_hi, lp.r_on, ind) + th.off_time_s
+    return np.where(reg, th.off_time_s, 0.0), np.where(reg, period, 1.0)
 
 
 def current_losses(drive: Drive, res: PointResults, cm: CurrentModeSteadyState) -> HoldLosses:
@@ -1097,13 +1108,19 @@ def _armature_actuation(drive: Drive, th: Thresholds, supply: float, coil_temp: 
     (:func:`threshold_hold`; with an eddy-current term the seated branch behind ``R_e``,
     the thresholds on its terminal current:
     :func:`coildrive.model.eddy_waveform.seated_hold`), the release run until the armature
-    is back on the open stop. After a boosted peak (a linear coil, :func:`in_flight_refused`)
-    the comparator carries an armature still in flight at the threshold onto the seat
-    first (:func:`comparator`). Where the armature is not seated at the end of the peak
-    otherwise, or the hold's (magnetising) current falls below the stay current, the hold
-    would switch with the armature in flight: not modelled, refused in one line (``InputError``). Without a hold (``hold_time`` 0: a
+    is back on the open stop (a full bridge's mixed decay: each off-time's fast part first,
+    all four open, flagged for the bridge's columns). After a boosted peak (a linear coil,
+    :func:`in_flight_refused`) the comparator carries an armature still in flight at the
+    threshold onto the seat first (:func:`comparator`). Where the armature is not seated at
+    the end of the peak otherwise, or the hold's (magnetising) current falls below the stay
+    current, the hold would switch with the armature in flight: not modelled, refused in one
+    line (``InputError``). Without a hold (``hold_time`` 0: a
     STOP in the peak) the switch opens at the peak's end, the armature wherever it is."""
     from ..model.waveform import armature_actuation
+
+    mixed = loop(drive, supply, coil_temp, r_factor, l_factor).mixed   # (a bridge's fast part)
+    t_fast = 0.0 if mixed is None else \
+        th.off_time_s if th.control == "hysteretic" else mixed.fraction * th.off_time_s
 
     def hold(t0, i0, v, r_on, r_off, v_off, seated):
         if isinstance(seated, EddyCoil):   # the seated branch behind R_e: the terminal current sensed
@@ -1111,18 +1128,19 @@ def _armature_actuation(drive: Drive, th: Thresholds, supply: float, coil_temp: 
             from ..model.eddy_waveform import seated_hold
 
             one = np.ones(1)
-            lp = Loop(v * one, r_on * one, r_off * one, v_off * one, seated, one, v * one)
-            ts, cur, mag, ons, t, m, t_last = seated_hold(lp, t0, i0, peak_time + hold_time, th.control, th.lower_a,
-                                                          th.upper_a, th.off_time_s, th.delay_s, points)
-            return ts, cur, ons, t, m, min(i0, float(np.min(mag, initial=i0))), t_last, mag
-        ts, cs, ons = [], [], []   # (the hold ends hold_time after the peak, as the firmware's)
-        t, i, last = threshold_hold(th, t0, i0, peak_time + hold_time, v, r_on, r_off, v_off, seated,
-                                    points, ts, cs, ons)
+    is back on the open stop (a full bridge's mixed decay: each off-time's fast part first,
+    all four open, flagged for the bridge's columns). After a boosted peak (a linear coil,
+    :func:`in_flight_refused`) the comparator carries an armature still in flight at the
+    threshold onto the seat first (:func:`comparator`). Where the armature is not seated at
+    the end of the peak otherwise, or the hold's (magnetising) current falls below the stay
+    current, the hold would switch with the armature in flight: not modelled, refused in one
+    line (``InputError``). Without a hold (``hold_time`` 0: a
         if not ts:
             return np.empty(0), np.empty(0), np.empty(0), t, i, i0, t0
         cur = np.concatenate(cs)
+        fast = None if marks is None else np.concatenate(marks, axis=1)[1]
         return (np.concatenate(ts), cur, np.concatenate(ons), t, i, min(i0, float(np.min(cur))),
-                last[0] if last else t0)
+                last[0] if last else t0, None, fast)
 
     if hold_time <= 0:   # no hold (a STOP in the peak): the switch opens at the peak's end
         return armature_actuation(drive, supply, coil_temp, peak_time, 0.0, 1.0, 0.0, r_factor,

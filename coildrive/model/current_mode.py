@@ -39,7 +39,7 @@ runs on that path -- fast until ``t_f``, slow after -- down to the lower thresho
 may come in the fast part (the switch then turns on with the fast part cut short).
 
 Mixed decay with an eddy term (an :class:`~coildrive.model.eddy.EddyCoil` on a linear
-branch): the same path in the magnetising current, each segment the branch's exact
+branch or a curve's): the same path in the magnetising current, each segment the branch's exact
 Thevenin one (below), the fast part's terminal current ``(R_e i_m - V_f) / (R_f + R_e)``
 blocking at ``i_m = V_f / R_e`` with the flux then dying through ``R_e`` alone
 (:func:`coildrive.model.eddy_mixed.fast_part`), the slow part never blocking. The sensed
@@ -315,17 +315,14 @@ class MixedPath:
 
 def _mixed_orbit(control, i_lo, level, t_off, v_on, r_on, r_off, inductance, delay,
                  mixed: MixedDecay) -> CurrentModeSteadyState:
-    """The current-mode orbit with a full bridge's mixed decay (a linear coil; an eddy term:
-    :func:`_eddy_mixed_orbit`): off at the
+    """The current-mode orbit with a full bridge's mixed decay (a linear coil or a curve; an
+    eddy term, on either: :func:`_eddy_mixed_orbit`): off at the
     upper/peak threshold ``level`` A (+ the delay's run-on), then fast for ``t_off`` s of a
     fixed off-time's ``mixed.fraction`` (``control`` ``"off_time"``) or, hysteretic, for the
     fixed one-shot time ``t_off`` s, the rest slow; the off-time ends after ``t_off`` s or at
     the lower threshold ``i_lo`` A (+ the delay)."""
-    if isinstance(inductance, EddyCoil) and not isinstance(inductance.magnetising, FluxCoil):
-        return _eddy_mixed_orbit(control, i_lo, level, t_off, v_on, r_on, r_off, inductance, delay, mixed)
     if isinstance(inductance, EddyCoil):
-        raise ValueError("a current-mode mixed-decay hold is modelled for a linear coil or a curve "
-                         "(an eddy term on a linear branch)")
+        return _eddy_mixed_orbit(control, i_lo, level, t_off, v_on, r_on, r_off, inductance, delay, mixed)
     # (a curve: the same segments, each the curve's exact quadrature through coildrive.model.rl)
     i_lo, level, t_off, v_on, r_on, r_off, delay, r_f, v_f, ind = _broadcast(
         (i_lo, level, t_off, v_on, r_on, r_off, delay, mixed.r_fast, mixed.v_fast), inductance)
@@ -353,8 +350,9 @@ def _mixed_orbit(control, i_lo, level, t_off, v_on, r_on, r_off, inductance, del
 # ------------------------------------------------------------------- an eddy-current term
 def _eddy_mixed_orbit(control, i_lo, level, t_off, v_on, r_on, r_s, e: EddyCoil, delay,
                       mixed: MixedDecay) -> CurrentModeSteadyState:
-    """:func:`_mixed_orbit` with an eddy term on a linear magnetising branch (module
-    docstring): the thresholds on the sensed current as magnetising currents of the loop
+    """:func:`_mixed_orbit` with an eddy term on a linear or a curve's magnetising branch
+    (module docstring; the branch's segments are :mod:`coildrive.model.eddy`'s, exact on
+    either): the thresholds on the sensed current as magnetising currents of the loop
     that conducts there; the fast part's terminal current blocks at ``i_m = V_f / R_e``
     and the flux then dies through ``R_e`` (:func:`coildrive.model.eddy_mixed.fast_part`),
     the slow part (Q2 + Q4, nothing opposing) never blocks. The off-time starts at the

@@ -408,15 +408,18 @@ def threshold_hold(pt: _Point, t: float, m: float, end: float, control: str, low
 
 
 def seated_hold(lp: Loop, t: float, m: float, end: float, control: str, lower: float, upper: float,
-                off_time: float, delay: float, points: int):
+                off_time: float, delay: float, points: int, fast_time: float = 0.0):
     """:func:`threshold_hold` on one point's loop ``lp`` (an
     :class:`~coildrive.model.eddy.EddyCoil` inductance: a moving armature's seated coil)
     from ``t`` s and ``m`` A of magnetising current, as arrays: ``(time s, terminal A,
     magnetising A, switch_on, t_off s, magnetising current at t_off A, start of the last
-    on-time s)`` (each edge two rows at the same time)."""
+    on-time s, all four open)`` (each edge two rows at the same time). A full bridge's
+    mixed decay (``lp.mixed``): each off-time fast for ``fast_time`` s, then slow, as in
+    :func:`threshold_actuation` (the last array flags the fast part's samples)."""
     pt = _Point(lp, m)
     pieces = ([], [], [], [], [])
+    mixed = _Mixed(lp, pt, m, max(off_time, fast_time), fast_time) if lp.mixed is not None else None
     t_off, m_off, last = threshold_hold(pt, t, m, end, control, lower, upper, off_time, delay, points,
-                                        pieces)
-    ts, ms, cs, ons, _ = (np.concatenate(x) if x else np.empty(0) for x in pieces)
-    return ts, cs, ms, ons, t_off, m_off, t_off - last[1]
+                                        pieces, mixed)
+    ts, ms, cs, ons, fasts = (np.concatenate(x) if x else np.empty(0) for x in pieces)
+    return ts, cs, ms, ons, t_off, m_off, t_off - last[1], fasts.astype(bool)

@@ -617,14 +617,15 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     rows at each edge) and an eighth item the samples' magnetising current. It needs the
     armature seated at the end of the peak and the hold's (magnetising) current never
     below the stay current (else ``ValueError``: a hold switched by thresholds with the
-    armature in flight is not modelled), and takes no mixed decay -- except after a boosted
-    peak (a linear coil; the hold on the stiff bus, as the seated coil's) with its ``comparator`` given
+    armature in flight is not modelled) -- except after a boosted peak (a linear coil; the
+    hold on the stiff bus, as the seated coil's) with its ``comparator`` given
     (:class:`~coildrive.model.armature_boost.Comparator`): there the comparator's switching
     carries the armature still in flight at the threshold on to the seat
     (:func:`~coildrive.model.armature_boost.comparator_schedule`, the run through its edges),
     and ``hold`` takes over at the first turn-off after it. On a full bridge its on-times are
-    Q1 + Q4 and its off-times the slow decay (the hold's loop), the release the fast one
-    (on the drooping bus riding it, :func:`_bus_release`).
+    Q1 + Q4 and its off-times the slow decay (the hold's loop; with mixed decay each first
+    all four open for its fast part: a ninth item flags those samples), the release the fast
+    one (on the drooping bus riding it, :func:`_bus_release`).
     """
     from .armature import params_from_loop, time_bound
     from .armature_sim import simulate
@@ -719,10 +720,10 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
         return _joined(head, rest, float(p.v_on[0])), bus
 
     tr = None
-    if hold is not None and (mixed is not None or peak_time <= 0):
-        raise ValueError("a hold switched by thresholds with an [armature] takes no mixed decay, "
-                         "and needs a peak")
+    if hold is not None and peak_time <= 0:
+        raise ValueError("a hold switched by thresholds with an [armature] needs a peak")
     mh = None   # with an eddy term and thresholds: the hold's magnetising current
+    hold_fast = None   # ... and with mixed decay its samples all four open
     if peak_time > 0 and (p.eddy is None or hold is not None):
         # Fast path: seated at the end of the peak and the hold current never below the
         # stay current -- then the hold is the closed-form PWM of the seated coil (with
@@ -750,6 +751,7 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
                 th, ih, oh, t_cut, i_cut, lowest, t_last, *more = hold(t_hand, i0, v, r_on, r_off,
                                                                        v_off, seated)
                 mh = more[0] if more else None
+                hold_fast = more[1] if len(more) > 1 else None
                 t_off, t_on = t_cut, t_cut - t_last
                 t_open = (t_off - min(lead, t_on) if lead >= 0 else t_off + lag) if split else math.inf
                 if split and t_last < t_open < t_cut and not np.any(th == t_open):
@@ -804,6 +806,9 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
                                                              tail.magnetising_current])
                 tr.log = head.log + tail.log
                 tr.events = {**tail.events, **head.events}
+                if hold_fast is not None:   # a mixed-decay hold's fast parts, all four open
+                    hold_fast = np.concatenate([np.zeros(tr.time.size - th.size - tail.time.size + k, bool),
+                                                hold_fast, np.zeros(tail.time.size - k, bool)])
                 if head.bus is not None:
                     tr.bus = np.concatenate([head.bus, np.full(th.size + tail.time.size - k, float(p.v_on[0]))])
         if tr is None and p_peak is not p and hold is None:
@@ -853,8 +858,11 @@ def armature_actuation(drive: Drive, supply: float, coil_temp: float, peak_time:
     extra = None
     if bridge:   # the four switches' states; the fast decay's voltage from the final turn-off
         fast_v, _ = _switch_and_sense(drive, fast, supply, current, on)
-        all_open = None
-        if t_fast > 0:   # and in the hold's fast parts (mixed decay): the off samples up to
+        all_open = hold_fast   # a hold switched by thresholds: its own fast parts (all before the
+        if hold_fast is not None and hold_fast.size != tr.time.size:   # turn-off: the bus's release
+            all_open = np.zeros(tr.time.size, bool)                     # keeps the rows up to it)
+            all_open[:hold_fast.size] = hold_fast[:tr.time.size]
+        if t_fast > 0 and hold is None:   # and in the hold's fast parts (mixed decay): the off samples up to
             # and including each fast part's end (the time into the period, to rounding)
             into = tr.time - peak_time - np.floor((tr.time - peak_time) / period) * period
             all_open = ((tr.time > peak_time) & (tr.time < t_off) & (on == 0) & (into > 0.5 * t_on)
