@@ -1128,13 +1128,15 @@ def _armature_actuation(drive: Drive, th: Thresholds, supply: float, coil_temp: 
             from ..model.eddy_waveform import seated_hold
 
             one = np.ones(1)
-    is back on the open stop (a full bridge's mixed decay: each off-time's fast part first,
-    all four open, flagged for the bridge's columns). After a boosted peak (a linear coil,
-    :func:`in_flight_refused`) the comparator carries an armature still in flight at the
-    threshold onto the seat first (:func:`comparator`). Where the armature is not seated at
-    the end of the peak otherwise, or the hold's (magnetising) current falls below the stay
-    current, the hold would switch with the armature in flight: not modelled, refused in one
-    line (``InputError``). Without a hold (``hold_time`` 0: a
+            lp = Loop(v * one, r_on * one, r_off * one, v_off * one, seated, one, v * one, mixed=mixed)
+            ts, cur, mag, ons, t, m, t_last, fast = seated_hold(
+                lp, t0, i0, peak_time + hold_time, th.control, th.lower_a, th.upper_a, th.off_time_s, th.delay_s,
+                points, t_fast)
+            return ts, cur, ons, t, m, min(i0, float(np.min(mag, initial=i0))), t_last, mag, fast
+        ts, cs, ons = [], [], []   # (the hold ends hold_time after the peak, as the firmware's)
+        marks = [] if mixed is not None else None
+        t, i, last = threshold_hold(th, t0, i0, peak_time + hold_time, v, r_on, r_off, v_off, seated,
+                                    points, ts, cs, ons, mixed, marks)
         if not ts:
             return np.empty(0), np.empty(0), np.empty(0), t, i, i0, t0
         cur = np.concatenate(cs)
