@@ -1478,15 +1478,16 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
     return None
 
 
-def _boosted_curves_refusal(coil: Coil, switch: Switch, freewheel: Freewheel, supply: Supply, hold: Hold,
-                            duty) -> tuple[str, str] | None:
+def _boosted_curves_refusal(coil: Coil, switch: Switch, freewheel: Freewheel, supply: Supply,
+                            hold: Hold) -> tuple[str, str] | None:
     """``(key, why)`` where a moving armature over its open and seated flux-linkage curves
     is not modelled with the boosted peak, else ``None``: it is
     (:func:`coildrive.model.armature_runs.pull_in` with a trip, the boost capacitor a state;
     :func:`coildrive.model.armature_boost.curve_window` the conversion after the threshold)
     from a boost capacitor on one low- or high-side switch with a diode, Zener or resistor
     freewheel (no split decay), a stiff main supply, a voltage-mode fixed or supply-table
-    hold, no eddy term and no on/off cycle."""
+    hold and no eddy term; an on/off cycle too (the peak's heat the run's copper integral,
+    the conversion after the threshold flown: :func:`coildrive.design.boost_armature.peak_heat`)."""
     what = "a moving armature over its open and seated flux-linkage curves"
     if not supply.boost_capacitance > 0:
         return "supply.boost_capacitance", f"{what} from an ideal boost (a boost capacitor only: give its capacitance)"
@@ -1503,14 +1504,12 @@ def _boosted_curves_refusal(coil: Coil, switch: Switch, freewheel: Freewheel, su
         return (("hold.mode" if hold.mode != "voltage" else "hold.regulation"),
                 f"{what} under a current-mode or closed-loop hold (a voltage-mode fixed or supply-table "
                 "hold only)")
-    if duty is not None:
-        return "duty", f"{what} over an on/off cycle ([duty]: the boosted run's peak heat is a linear coil's)"
     return None
 
 
 def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, freewheel: Freewheel,
                  supply: Supply, hold: Hold, pull_in: PullIn, armature: Armature | None,
-                 duty, latch: "Latch | None" = None) -> None:
+                 latch: "Latch | None" = None) -> None:
     """What the boosted peak (``supply.boost``) is modelled with: a linear coil or a
     flux-linkage curve (an eddy term too, either way), a low-side
     or a high-side switch or a full bridge (the boost switch feeding leg A's high side, the
@@ -1565,7 +1564,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                                    "drooping bus with the converter drawing and the feed blocking is a "
                                    "linear coil's, a curve's or an eddy term's on a linear coil)")
     elif armature is not None and coil.flux_current and hold.mode != "latch" and (
-            refused := _boosted_curves_refusal(coil, switch, freewheel, supply, hold, duty)):
+            refused := _boosted_curves_refusal(coil, switch, freewheel, supply, hold)):
         key, why = refused
     elif hold.mode == "latch" and (refused := _boosted_latch_refusal(coil, switch, supply, armature, latch)):
         key, why = refused
@@ -1919,7 +1918,7 @@ def _finish_drive(source, path, data, brd, coil, supply, ambient, thermal, pull_
     merged, origins = _merged(brd.source, fw_board, source, fw_drive)
     freewheel = _read_freewheel(_Section(source, merged, "freewheel", origins))
     _check_bridge(source, origins, switch, freewheel, supply, hold, coil, armature)
-    _check_boost(source, origins, coil, switch, freewheel, supply, hold, pull_in, armature, duty, latch)
+    _check_boost(source, origins, coil, switch, freewheel, supply, hold, pull_in, armature, latch)
     if freewheel.type == "clamp" and freewheel.clamp_voltage <= supply.max:
         raise InputError(origins.get("clamp_voltage", source), "freewheel.clamp_voltage",
                          f"{freewheel.clamp_voltage:g} V is not above supply.max ({supply.max:g} V): "
