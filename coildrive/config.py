@@ -1484,8 +1484,9 @@ def _boosted_curves_refusal(coil: Coil, switch: Switch, freewheel: Freewheel, su
     is not modelled with the boosted peak, else ``None``: it is
     (:func:`coildrive.model.armature_runs.pull_in` with a trip, the boost capacitor a state;
     :func:`coildrive.model.armature_boost.curve_window` the conversion after the threshold)
-    from a boost capacitor on one low- or high-side switch with a diode, Zener or resistor
-    freewheel (no split decay), a stiff main supply, a voltage-mode fixed or supply-table
+    from a boost capacitor on one low- or high-side switch with any freewheel (a clamp across
+    the switch, split decay too: the hold's flights through the hold path, the release's
+    through the release path), a stiff main supply, a voltage-mode fixed or supply-table
     hold and no eddy term; an on/off cycle too (the peak's heat the run's copper integral,
     the conversion after the threshold flown: :func:`coildrive.design.boost_armature.peak_heat`)."""
     what = "a moving armature over its open and seated flux-linkage curves"
@@ -1497,9 +1498,6 @@ def _boosted_curves_refusal(coil: Coil, switch: Switch, freewheel: Freewheel, su
         return "supply.source_resistance", f"{what} on a drooping main supply (a stiff one only)"
     if switch.topology == "full_bridge":
         return "switch.topology", f"{what} on a full bridge (one low- or high-side switch only)"
-    if freewheel.type == "clamp" or freewheel.split_decay:
-        return (("freewheel.type" if freewheel.type == "clamp" else "freewheel.split_decay"),
-                f"{what} and a clamp or split decay (a diode, Zener or resistor freewheel only)")
     if hold.mode != "voltage" or hold.regulation == "closed_loop":
         return (("hold.mode" if hold.mode != "voltage" else "hold.regulation"),
                 f"{what} under a current-mode or closed-loop hold (a voltage-mode fixed or supply-table "
@@ -1596,7 +1594,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "main supply (or a drooping one; on a full bridge a linear coil or a curve, an eddy "
                          "term on a linear coil, or on a curve on a supply that sinks; with [armature] a "
                          "linear coil, an eddy term too (or its open and seated flux-linkage curves from a "
-                         "boost capacitor on one switch, a stiff main supply, a voltage-mode fixed or "
+                         "boost capacitor on one switch, any freewheel, a stiff main supply, a voltage-mode fixed or "
                          "supply-table hold), a clamp without split decay, on a full bridge a "
                          "slow-decay hold), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; a "
