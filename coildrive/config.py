@@ -1487,7 +1487,8 @@ def _boosted_curves_refusal(coil: Coil, switch: Switch, freewheel: Freewheel, su
     from a boost capacitor on one low- or high-side switch with any freewheel (a clamp across
     the switch, split decay too: the hold's flights through the hold path, the release's
     through the release path), a stiff main supply, a voltage-mode fixed or supply-table
-    hold and no eddy term; an on/off cycle too (the peak's heat the run's copper integral,
+    hold (or a current-mode one where the armature seats within the peak at every corner:
+    :func:`coildrive.design.boost_armature.require_seated_in_peak`) and no eddy term; an on/off cycle too (the peak's heat the run's copper integral,
     the conversion after the threshold flown: :func:`coildrive.design.boost_armature.peak_heat`)."""
     what = "a moving armature over its open and seated flux-linkage curves"
     if not supply.boost_capacitance > 0:
@@ -1498,10 +1499,9 @@ def _boosted_curves_refusal(coil: Coil, switch: Switch, freewheel: Freewheel, su
         return "supply.source_resistance", f"{what} on a drooping main supply (a stiff one only)"
     if switch.topology == "full_bridge":
         return "switch.topology", f"{what} on a full bridge (one low- or high-side switch only)"
-    if hold.mode != "voltage" or hold.regulation == "closed_loop":
-        return (("hold.mode" if hold.mode != "voltage" else "hold.regulation"),
-                f"{what} under a current-mode or closed-loop hold (a voltage-mode fixed or supply-table "
-                "hold only)")
+    if hold.regulation == "closed_loop":
+        return ("hold.regulation", f"{what} under a closed-loop hold (a voltage-mode fixed or supply-table "
+                "hold, or a current-mode one seated within the peak)")
     return None
 
 
@@ -1595,7 +1595,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "term on a linear coil, or on a curve on a supply that sinks; with [armature] a "
                          "linear coil, an eddy term too (or its open and seated flux-linkage curves from a "
                          "boost capacitor on one switch, any freewheel, a stiff main supply, a voltage-mode fixed or "
-                         "supply-table hold), a clamp without split decay, on a full bridge a "
+                         "supply-table hold or a current-mode one), a clamp without split decay, on a full bridge a "
                          "slow-decay hold), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; a "
                          "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, or a "

@@ -499,10 +499,12 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                                     grid.l_factor, 0.0, heat_peak=peak_time)
         if drive.supply.boosted and first.armature is not None:
             from .boost_armature import require_seated_in_peak
+            # (over the open and seated curves the closed loop is not modelled: config)
             require_seated_in_peak(drive, grid.label, first.armature.pull_in, "hold.mode",
                                    "a current-mode hold", "its thresholds would switch the coil with "
                                    "the armature moving",
-                                   "a voltage-mode hold (or the closed loop, which carries it)")
+                                   "a voltage-mode hold" + ("" if drive.coil.flux_current else
+                                                            " (or the closed loop, which carries it)"))
         pk = plan_peak(drive, grid, first)
         # the longest real peak: the ticks and the driver's switch lead
         longer = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate + switch_lag(drive)[1]
