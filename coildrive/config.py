@@ -1478,18 +1478,19 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
     return None
 
 
-def _boosted_curves_refusal(coil: Coil, switch: Switch, freewheel: Freewheel, supply: Supply,
-                            hold: Hold) -> tuple[str, str] | None:
+def _boosted_curves_refusal(coil: Coil, switch: Switch, supply: Supply, hold: Hold) -> tuple[str, str] | None:
     """``(key, why)`` where a moving armature over its open and seated flux-linkage curves
     is not modelled with the boosted peak, else ``None``: it is
     (:func:`coildrive.model.armature_runs.pull_in` with a trip, the boost capacitor a state;
     :func:`coildrive.model.armature_boost.curve_window` the conversion after the threshold)
     from a boost capacitor on one low- or high-side switch with any freewheel (a clamp across
     the switch, split decay too: the hold's flights through the hold path, the release's
-    through the release path), a stiff main supply, a voltage-mode fixed or supply-table
-    hold (or a current-mode one where the armature seats within the peak at every corner:
-    :func:`coildrive.design.boost_armature.require_seated_in_peak`) and no eddy term; an on/off cycle too (the peak's heat the run's copper integral,
-    the conversion after the threshold flown: :func:`coildrive.design.boost_armature.peak_heat`)."""
+    through the release path) or on a full bridge with a slow-decay hold (the release through
+    the body diodes), a stiff main supply, a voltage-mode fixed or supply-table hold (or a
+    current-mode one where the armature seats within the peak at every corner:
+    :func:`coildrive.design.boost_armature.require_seated_in_peak`), no eddy term; an on/off
+    cycle too (the peak's heat the run's copper integral, the conversion after the threshold
+    flown: :func:`coildrive.design.boost_armature.peak_heat`)."""
     what = "a moving armature over its open and seated flux-linkage curves"
     if not supply.boost_capacitance > 0:
         return "supply.boost_capacitance", f"{what} from an ideal boost (a boost capacitor only: give its capacitance)"
@@ -1497,8 +1498,9 @@ def _boosted_curves_refusal(coil: Coil, switch: Switch, freewheel: Freewheel, su
         return "coil.eddy_resistance", f"{what} and an eddy-current term"
     if supply.droops:
         return "supply.source_resistance", f"{what} on a drooping main supply (a stiff one only)"
-    if switch.topology == "full_bridge":
-        return "switch.topology", f"{what} on a full bridge (one low- or high-side switch only)"
+    if switch.topology == "full_bridge" and hold.fast_fraction > 0:
+        return "hold.fast_fraction", (f"{what} and a full bridge's mixed-decay hold (on a full bridge a "
+                                      "slow-decay hold only)")
     if hold.regulation == "closed_loop":
         return ("hold.regulation", f"{what} under a closed-loop hold (a voltage-mode fixed or supply-table "
                 "hold, or a current-mode one seated within the peak)")
@@ -1562,7 +1564,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                                    "drooping bus with the converter drawing and the feed blocking is a "
                                    "linear coil's, a curve's or an eddy term's on a linear coil)")
     elif armature is not None and coil.flux_current and hold.mode != "latch" and (
-            refused := _boosted_curves_refusal(coil, switch, freewheel, supply, hold)):
+            refused := _boosted_curves_refusal(coil, switch, supply, hold)):
         key, why = refused
     elif hold.mode == "latch" and (refused := _boosted_latch_refusal(coil, switch, supply, armature, latch)):
         key, why = refused
@@ -1594,9 +1596,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "main supply (or a drooping one; on a full bridge a linear coil or a curve, an eddy "
                          "term on a linear coil, or on a curve on a supply that sinks; with [armature] a "
                          "linear coil, an eddy term too (or its open and seated flux-linkage curves from a "
-                         "boost capacitor on one switch, any freewheel, a stiff main supply, a voltage-mode fixed or "
-                         "supply-table hold or a current-mode one), a clamp without split decay, on a full bridge a "
-                         "slow-decay hold), a "
+                         "boost capacitor, a stiff main supply, a voltage-mode fixed or supply-table hold or a "
+                         "current-mode one, on a full bridge a slow-decay one), a clamp without split decay, "
+                         "on a full bridge a slow-decay hold), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; a "
                          "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, or a "
                          "linear coil on a full bridge with a boost capacitor; a stiff or a "

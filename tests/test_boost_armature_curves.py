@@ -417,28 +417,31 @@ def test_an_on_off_cycle_s_peak_heat_is_the_run_s_copper_integral_over_the_curve
 # ------------------------------------------------- a clamp across the switch, split decay
 DIODE = 'type = "diode"\ndiode_drop = "0.8 V"'
 #: a 60 V clamp across the switch (above the boost at full charge, 50.4 V); a 24 V Zener
-#: bypassed in the hold by a 0.2 ohm switch that opens 20 us after the final turn-off
-FREEWHEELS = {"clamp": 'type = "clamp"\nclamp_voltage = "60 V"',
-              "split": 'type = "zener"\ndiode_drop = "0.8 V"\nzener_voltage = "24 V"\nsplit_decay = true\n'
-                       'bypass_resistance = "0.2 ohm"\nbypass_lead = "-20 us"'}
+#: bypassed in the hold by a 0.2 ohm switch that opens 20 us after the final turn-off; the
+#: bundled full bridge (body diodes 0.8 V, the sense inline) with 100 V switches
+VARIANTS = {"clamp": {DIODE: 'type = "clamp"\nclamp_voltage = "60 V"'},
+            "split": {DIODE: 'type = "zener"\ndiode_drop = "0.8 V"\nzener_voltage = "24 V"\nsplit_decay = true\n'
+                             'bypass_resistance = "0.2 ohm"\nbypass_lead = "-20 us"'},
+            "bridge": {'board = "lab-m32-zener"': f'board = "{EXAMPLES.parent / "boards" / "bridge-m32-fast.toml"}"'
+                                                   '\n[switch]\nmax_voltage = "100 V"'}}
 
 
-@pytest.fixture(scope="module", params=sorted(FREEWHEELS))
+@pytest.fixture(scope="module", params=sorted(VARIANTS))
 def freewheeled(request, tmp_path_factory):
     """``(kind, drive file, design --json)`` of the saturating plunger with a clamp across
-    the switch or a split-decay Zener (a real subprocess)."""
-    path = boost_curve_drive(tmp_path_factory.mktemp(request.param), extra={DIODE: FREEWHEELS[request.param]})
+    the switch, a split-decay Zener or on the full bridge (a real subprocess)."""
+    path = boost_curve_drive(tmp_path_factory.mktemp(request.param), extra=VARIANTS[request.param])
     r = run_cli("design", str(path), "--json", cwd=EXAMPLES)
     assert r.returncode in (0, 1), r.stderr
     return request.param, path, json.loads(r.stdout)
 
 
-def test_a_clamp_or_split_decay_seats_as_scipy(freewheeled):
+def test_a_clamp_split_decay_or_bridge_seats_as_scipy(freewheeled):
     """The latest seat with the hold's off-times through the clamp (the coil sees ``V_bus -
-    V_clamp``: 9 - 60 V, the switch 60 V, docs/design-method.md's clamp; hand-worked) or
+    V_clamp``: 9 - 60 V, the switch 60 V, docs/design-method.md's clamp; hand-worked),
     through the diode and the bypass switch (0.8 V, the bypass's 0.2 ohm on top of the
-    release path's resistance): against solve_ivp (DOP853) on the equations written
-    afresh, within 1e-5."""
+    release path's resistance) or the full bridge's slow decay (0 V; its release ``-(V_bus
+    + 2 V_d)``): against solve_ivp (DOP853) on the equations written afresh, within 1e-5."""
     from coildrive.config import load_drive
     from coildrive.model.circuit import loop
 
@@ -451,17 +454,21 @@ def test_a_clamp_or_split_decay_seats_as_scipy(freewheeled):
         assert float(lp.v_off[0]) == pytest.approx(60.0 - 9.0) and float(rel.v_off[0]) == pytest.approx(51.0)
         assert d["release"]["peak_switch_voltage_v"] == pytest.approx(60.0)
         assert d["boost"]["switch_voltage_v"] == pytest.approx(60.0)
+    elif kind == "bridge":   # slow decay through the two low-side switches; fast: -(V_bus + 2 V_d)
+        assert float(lp.v_off[0]) == 0.0 and float(rel.v_off[0]) == pytest.approx(9.0 + 2 * 0.8)
+        assert d["topology"]["bridge"]["hold_decay"] == "slow"
     else:
         assert float(lp.v_off[0]) == pytest.approx(0.8) and float(rel.v_off[0]) == pytest.approx(24.8)
         assert float(lp.r_off[0] - rel.r_off[0]) == pytest.approx(0.2)
 
 
-def test_a_clamp_or_split_decay_simulates_and_emulates(freewheeled, tmp_path):
+def test_a_clamp_split_decay_or_bridge_simulates_and_emulates(freewheeled, tmp_path):
     """simulate at the hot, low-supply point: with the clamp the switch sees the clamp's
-    60 V at the final turn-off and never more; with split decay the bypass (column
-    ``bypass_on``) opens 20 us after it, the Zener's path then. The split-decay drive's
-    virtual bench device passes ``check``, a coil 40 % over its resistance fails it
-    (plumbing: the device shares the design's physics)."""
+    60 V at the final turn-off and never more; on the full bridge all four switches are
+    off after it and the coil sees ``-(V_bus + 2 V_d + R_sense i)`` (its sense inline); with
+    split decay the bypass (column ``bypass_on``) opens 20 us after it, the Zener's path
+    then. The split-decay and the bridge's virtual bench device passes ``check``, a coil 40 %
+    over its resistance fails it (plumbing: the device shares the design's physics)."""
     kind, path, _ = freewheeled
     out = tmp_path / "a.csv"
     r = run_cli("simulate", str(path), "--supply", "9", "--coil-temp", "110", "--hold-time", "0.002",
@@ -475,8 +482,13 @@ def test_a_clamp_or_split_decay_simulates_and_emulates(freewheeled, tmp_path):
         assert np.max(data["switch_voltage_v"]) == pytest.approx(60.0)
         assert data["switch_voltage_v"][k + 1] == pytest.approx(60.0)
         return
-    opened = t[int(np.argmax((data["bypass_on"] == 0) & (t > t[k])))]
-    assert opened - t[k] == pytest.approx(20e-6, rel=1e-9)
+    if kind == "bridge":
+        assert [data[n][k + 1] for n in ("high_a_on", "low_a_on", "high_b_on", "low_b_on")] == [0, 0, 0, 0]
+        assert data["coil_voltage_v"][k + 1] == pytest.approx(-(9.0 + 1.6 + 0.1 * data["current_a"][k + 1]),
+                                                              abs=1e-5)
+    else:
+        opened = t[int(np.argmax((data["bypass_on"] == 0) & (t > t[k])))]
+        assert opened - t[k] == pytest.approx(20e-6, rel=1e-9)
     from test_boost_armature import emulated_passes_and_weak_coil_fails
 
     from coildrive.config import load_drive
@@ -528,14 +540,16 @@ def test_a_current_mode_hold_seated_within_the_peak(tmp_path):
     assert "not yet seated" in lines[0] and "closed loop" not in lines[0]
 
 
-@pytest.mark.parametrize("kind", sorted(FREEWHEELS))
-def test_the_release_through_a_clamp_or_split_decay_matches_scipy(solved, tmp_path, kind):
+@pytest.mark.parametrize("kind", sorted(VARIANTS))
+def test_the_release_through_a_clamp_split_decay_or_bridge_matches_scipy(solved, tmp_path, kind):
     """The seated plunger turned off at 1 A (the hot 9 V point, L-10 %): the decay on the
-    seated curve through the clamp (``V_clamp - V_bus``) or, for split decay, 20 us through
-    the bypassed path then through the Zener, the armature letting go where the co-energy's
-    force falls to spring + load at the seat, its flight to the open stop and the current's
-    zero -- the unlatch, zero and open moments against solve_ivp (DOP853) on the
-    equations written afresh over scipy's PCHIP of the scaled tables, within 1e-5."""
+    seated curve through the clamp (``V_clamp - V_bus``), the full bridge's body diodes
+    (``V_bus + 2 V_d``) or, for split decay, 20 us through the bypassed path then through
+    the Zener, the armature letting go where the co-energy's force falls to spring + load
+    at the seat, its flight to the open stop and the current's zero -- the unlatch, zero
+    and open moments and the charge to zero (a bridge returns ``V_bus`` x it to the
+    supply) against solve_ivp (DOP853) on the equations written afresh over scipy's PCHIP
+    of the scaled tables, within 1e-5."""
     from scipy.integrate import solve_ivp
     from scipy.optimize import brentq
 
@@ -544,7 +558,7 @@ def test_the_release_through_a_clamp_or_split_decay_matches_scipy(solved, tmp_pa
     from coildrive.model.armature_runs import late_release, release
     from coildrive.model.circuit import loop
 
-    drive = load_drive(boost_curve_drive(tmp_path, extra={DIODE: FREEWHEELS[kind]}))
+    drive = load_drive(boost_curve_drive(tmp_path, extra=VARIANTS[kind]))
     at = (np.array([9.0]), np.array([110.0]), np.array([1.05]), np.array([0.9]))
     slow, fast = (params_from_loop(drive.armature, loop(drive, *at, path=w), np.array([0.9]))
                   for w in ("hold", "release"))
@@ -560,12 +574,12 @@ def test_the_release_through_a_clamp_or_split_decay_matches_scipy(solved, tmp_pa
         r_off, v_off = paths[k]
 
         def f_(_t, y):
-            psi, x, v = y
-            i = f.current(psi, x)
+            psi, x, v = y[:3]
+            i = f.current(psi, x) if psi > 0 else 0.0
             dpsi = -(r_off * i + v_off) if psi > 0 else 0.0
             acc = (arm.spring_preload + arm.spring_rate * (stroke - x) + arm.load_force - f.closing_force(psi)
                    - arm.damping * v) / arm.mass
-            return [dpsi, v if free else 0.0, acc if free else 0.0]
+            return [dpsi, v if free else 0.0, acc if free else 0.0, i]
         return f_
 
     def ev(fn, direction):
@@ -574,8 +588,8 @@ def test_the_release_through_a_clamp_or_split_decay_matches_scipy(solved, tmp_pa
 
     stay = arm.spring_preload + arm.spring_rate * stroke + arm.load_force
     psi_un = brentq(lambda s: f.closing_force(s) - stay, 1e-6, 0.1, xtol=1e-16)
-    opts = dict(method="DOP853", rtol=1e-12, atol=[1e-15, 1e-14, 1e-11])
-    y, t, k = [f.psi_of("c", 1.0), 0.0, 0.0], 0.0, 0 if lag else 1
+    opts = dict(method="DOP853", rtol=1e-12, atol=[1e-15, 1e-14, 1e-11, 1e-15])
+    y, t, k = [f.psi_of("c", 1.0), 0.0, 0.0, 0.0], 0.0, 0 if lag else 1
     free, out = False, {}
     while "open" not in out:
         until = lag if k == 0 else 1.0
@@ -594,6 +608,7 @@ def test_the_release_through_a_clamp_or_split_decay_matches_scipy(solved, tmp_pa
     assert got.unlatch_time[0] == pytest.approx(out["unlatch"], rel=1e-5)      # scipy solve_ivp
     assert got.zero_time[0] == pytest.approx(out["zero"], rel=1e-5)            # scipy solve_ivp
     assert got.open_time[0] == pytest.approx(out["open"], rel=1e-5)            # scipy solve_ivp
+    assert got.charge[0] == pytest.approx(y[3], rel=1e-5)                       # scipy solve_ivp
     if lag:
         assert out["unlatch"] > lag, "seated until the bypass opens: the Zener takes the rest"
 
@@ -604,11 +619,14 @@ def test_the_release_through_a_clamp_or_split_decay_matches_scipy(solved, tmp_pa
                       'boost_efficiency = 0.85'}, "supply.source_resistance"),
     ({'frequency = "60 kHz"': 'frequency = "60 kHz"\nregulation = "closed_loop"'}, "hold.regulation"),
     ({"\n[supply]": '\neddy_resistance = "200 ohm"\n\n[supply]'}, "coil.eddy_resistance"),
-], ids=["ideal-boost", "drooping", "closed-loop", "eddy"])
+    ({**VARIANTS["bridge"], 'frequency = "60 kHz"': 'frequency = "60 kHz"\nfast_fraction = 0.3'},
+     "hold.fast_fraction"),
+], ids=["ideal-boost", "drooping", "closed-loop", "eddy", "mixed-decay"])
 def test_what_stays_refused_is_refused_in_one_line(tmp_path, extra, key):
-    """Beyond one switch, a boost capacitor, a stiff main supply and a voltage-mode fixed
-    or supply-table hold (or a current-mode one seated within the peak), the curves with a
-    boosted armature are refused: one line naming the key (exit 2), no traceback."""
+    """Beyond a boost capacitor, a stiff main supply, a voltage-mode fixed or supply-table
+    hold (or a current-mode one seated within the peak) and on a full bridge a slow-decay
+    hold, the curves with a boosted armature are refused: one line naming the key (exit 2),
+    no traceback."""
     path = boost_curve_drive(tmp_path, extra=extra)
     r = run_cli("design", str(path), cwd=EXAMPLES)
     lines = r.stderr.strip().splitlines()
