@@ -347,17 +347,18 @@ def test_emulated_saturating_drive_passes_check_and_a_weak_coil_fails(saturating
 
 
 @pytest.mark.compiler
-def test_firmware_in_the_loop_over_the_curves(saturating, tmp_path):
-    """The reference C driver (gcc) in the loop at the hottest coil and 9 V: the device
-    flies the armature over the curves as the driver switches (bench/boost_flight.py) and
-    ``check`` (a subprocess) passes. Plumbing."""
+@pytest.mark.parametrize("topology", ["low_side", "full_bridge"])
+def test_firmware_in_the_loop_over_the_curves(saturating, tmp_path, topology):
+    """The reference C driver (gcc) in the loop at the hottest coil and 9 V (on one switch
+    and on the full bridge): the device flies the armature over the curves as the driver
+    switches (bench/boost_flight.py) and ``check`` (a subprocess) passes. Plumbing."""
     from driver_harness import checked_rows, loop_captures
 
     from coildrive.bench.messages import EventKind
     from coildrive.config import load_drive
     from coildrive.design import design
 
-    path = saturating[0]
+    path = saturating[0] if topology == "low_side" else boost_curve_drive(tmp_path, extra=VARIANTS["bridge"])
     d = design(load_drive(path))
     temp = max(c.coil_temp_c for c in d.corners)
     (cap_path, cap), = loop_captures(tmp_path, d, [(d.drive.supply.min, temp, None)], hold_time=0.004)
