@@ -260,7 +260,10 @@ def peak_heat(drive: Drive, lp, peak_time) -> np.ndarray:
     (:func:`_end`'s stiff open-coil bound), from the boost at its lowest (the longest peak)
     and at its highest (the most current), the larger. Where the run never reaches the
     highest trip current the current stays below it for the whole time-out ``peak_time``
-    s: ``R_coil i_trip^2 peak_time`` bounds it.
+    s: ``R_coil i_trip^2 peak_time`` bounds it. With the open and seated flux-linkage
+    curves the conversion after the threshold is flown, not bounded
+    (:func:`~coildrive.model.armature_boost.curve_window`: its ``int i^2 dt`` row). The
+    runs do not depend on the main supply: each distinct point is run once.
 
     With an eddy term (``i`` the terminal current the winding carries) the core's loss
     ``int v_m^2 / R_e dt`` is added, bounded from above by the first law at the trip: what
