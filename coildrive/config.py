@@ -1483,29 +1483,51 @@ def _boosted_curves_refusal(coil: Coil, switch: Switch, freewheel: Freewheel, su
     is not modelled with the boosted peak, else ``None``: it is
     (:func:`coildrive.model.armature_runs.pull_in` with a trip, the boost capacitor a state
     or an ideal boost a stiff source; :func:`coildrive.model.armature_boost.curve_window` the
-    conversion after the threshold) from a boost capacitor or an ideal boost on one low- or
-    high-side switch with a diode, Zener or resistor freewheel (no split decay), a stiff or
-    a drooping main supply (the hold's flights on the main bus from the hand-over,
-    :func:`coildrive.design.supply.handover_bus`), a voltage-mode fixed or supply-table hold
-    (an eddy term too: the threshold on the terminal current) and no on/off cycle."""
+    conversion after the threshold) from a boost capacitor on one low- or high-side switch
+    with any freewheel (a clamp across the switch, split decay too: the hold's flights
+    through the hold path, the release's through the release path) or on a full bridge with
+    a slow-decay hold (the release through the body diodes), a stiff main supply, a
+    voltage-mode fixed or supply-table hold (or a current-mode one where the armature seats
+    within the peak at every corner:
+    :func:`coildrive.design.boost_armature.require_seated_in_peak`), no eddy term; an on/off
+    cycle too (the peak's heat the run's copper integral, the conversion after the threshold
+    flown: :func:`coildrive.design.boost_armature.peak_heat`). From an ideal boost, with an
+    eddy term (the threshold on the terminal current) or on a drooping main supply (the
+    hold's flights on the main bus from the hand-over,
+    :func:`coildrive.design.supply.handover_bus`): on one switch with a diode, Zener or
+    resistor freewheel (no split decay) under a voltage-mode fixed or supply-table hold
+    without an on/off cycle -- each of the two sets is checked against its own references,
+    their mixtures are not and are refused."""
     what = "a moving armature over its open and seated flux-linkage curves"
-    if switch.topology == "full_bridge":
-        return "switch.topology", f"{what} on a full bridge (one low- or high-side switch only)"
-    if freewheel.type == "clamp" or freewheel.split_decay:
-        return (("freewheel.type" if freewheel.type == "clamp" else "freewheel.split_decay"),
-                f"{what} and a clamp or split decay (a diode, Zener or resistor freewheel only)")
-    if hold.mode != "voltage" or hold.regulation == "closed_loop":
-        return (("hold.mode" if hold.mode != "voltage" else "hold.regulation"),
-                f"{what} under a current-mode or closed-loop hold (a voltage-mode fixed or supply-table "
-                "hold only)")
-    if duty is not None:
-        return "duty", f"{what} over an on/off cycle ([duty]: the boosted run's peak heat is a linear coil's)"
+    if switch.topology == "full_bridge" and hold.fast_fraction > 0:
+        return "hold.fast_fraction", (f"{what} and a full bridge's mixed-decay hold (on a full bridge a "
+                                      "slow-decay hold only)")
+    if hold.regulation == "closed_loop":
+        return ("hold.regulation", f"{what} under a closed-loop hold (a voltage-mode fixed or supply-table "
+                "hold, or a current-mode one seated within the peak)")
+    wider = [(key, text) for key, text, given in (
+        ("supply.boost_capacitance", "an ideal boost", not supply.boost_capacitance > 0),
+        ("coil.eddy_resistance", "an eddy-current term", bool(coil.eddy_resistance)),
+        ("supply.source_resistance", "a drooping main supply", supply.droops)) if given]
+    other = [(key, text) for key, text, given in (
+        ("switch.topology", "a full bridge", switch.topology == "full_bridge"),
+        ("freewheel.type", "a clamp across the switch", freewheel.type == "clamp"),
+        ("freewheel.split_decay", "split decay", bool(freewheel.split_decay)),
+        ("hold.mode", "a current-mode hold", hold.mode == "current"),
+        ("duty", "an on/off cycle ([duty])", duty is not None)) if given]
+    if wider and other:
+        return other[0][0], (f"{what} with {wider[0][1]} and {other[0][1]} together (either is designed "
+                             "alone: from an ideal boost, with an eddy term or on a drooping main supply "
+                             "on one switch with a diode, Zener or resistor freewheel under a voltage-mode "
+                             "fixed or supply-table hold; a full bridge, a clamp or split decay, a "
+                             "current-mode hold or an on/off cycle from a boost capacitor, no eddy term, "
+                             "a stiff main supply)")
     return None
 
 
 def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, freewheel: Freewheel,
                  supply: Supply, hold: Hold, pull_in: PullIn, armature: Armature | None,
-                 duty, latch: "Latch | None" = None) -> None:
+                 duty=None, latch: "Latch | None" = None) -> None:
     """What the boosted peak (``supply.boost``) is modelled with: a linear coil or a
     flux-linkage curve (an eddy term too, either way), a low-side
     or a high-side switch or a full bridge (the boost switch feeding leg A's high side, the
@@ -1589,8 +1611,9 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "term on a linear coil, or on a curve on a supply that sinks; with [armature] a "
                          "linear coil, an eddy term too (or its open and seated flux-linkage curves from a "
                          "boost capacitor or an ideal boost on one switch, a diode/zener/resistor freewheel, a "
-                         "voltage-mode fixed or supply-table hold), a clamp (split decay too), on a full bridge a "
-                         "slow-decay hold), a "
+                         "voltage-mode fixed or supply-table hold; or from a boost capacitor on a stiff main "
+                         "supply a clamp, split decay, a current-mode hold or an on/off cycle, on a full bridge "
+                         "a slow-decay one), a clamp (split decay too), on a full bridge a slow-decay hold), a "
                          "voltage-mode or current-mode hold, a peak without compensate or settle_time; a "
                          "latching coil: a linear coil or a curve (an eddy term too) and its reset winding, or on a "
                          "full bridge with a boost capacitor; a stiff or a "

@@ -264,7 +264,10 @@ def peak_heat(drive: Drive, lp, peak_time) -> np.ndarray:
     (:func:`_end`'s stiff open-coil bound), from the boost at its lowest (the longest peak)
     and at its highest (the most current), the larger. Where the run never reaches the
     highest trip current the current stays below it for the whole time-out ``peak_time``
-    s: ``R_coil i_trip^2 peak_time`` bounds it.
+    s: ``R_coil i_trip^2 peak_time`` bounds it. With the open and seated flux-linkage
+    curves the conversion after the threshold is flown, not bounded
+    (:func:`~coildrive.model.armature_boost.curve_window`: its ``int i^2 dt`` row). The
+    runs do not depend on the main supply: each distinct point is run once.
 
     With an eddy term (``i`` the terminal current the winding carries) the core's loss
     ``int v_m^2 / R_e dt`` is added, bounded from above by the first law at the trip: what
@@ -278,37 +281,49 @@ def peak_heat(drive: Drive, lp, peak_time) -> np.ndarray:
     size, ``i_m`` at most the open branch's stiff rise from the trip (where never, at most
     ``(R + R_e) i_trip / R_e``, the terminal current being below ``i_trip``)."""
     from ..model.eddy import EddyCoil
+    from ..model.flux import FluxCoil
     from .boost import threshold
 
     eddy = isinstance(lp.inductance, EddyCoil)
     fields = ("v_on", "r_on", "r_off", "v_off", "r_coil", "supply")
     ind = lp.inductance.magnetising if eddy else lp.inductance
+    curves = isinstance(ind, FluxCoil)
     shape = np.broadcast_shapes(*(np.shape(getattr(lp, f)) for f in fields), np.shape(ind))
     flat = {f: np.ravel(np.broadcast_to(getattr(lp, f), shape)).astype(float) for f in fields}
-    ind = np.ravel(np.broadcast_to(np.asarray(ind, float), shape))
-    r_e = float(drive.coil.eddy_resistance) if eddy else 0.0
     # (the loop's inductance, the magnetising branch's with an eddy term, is the seated one
-    # x the tolerance factor: circuit.loop)
+    # x the tolerance factor: circuit.loop; with the two curves the seated curve at that scale)
+    factor = np.ravel(np.broadcast_to(np.asarray(ind.scale if curves else ind / drive.armature.inductance_closed,
+                                                 float), shape))
+    r_e = float(drive.coil.eddy_resistance) if eddy else 0.0
+    ind = ind.with_scale(factor) if curves else np.ravel(np.broadcast_to(np.asarray(ind, float), shape))
     flat = Loop(flat["v_on"], flat["r_on"], flat["r_off"], flat["v_off"], ind, flat["r_coil"], flat["supply"])
-    p = params_from_loop(drive.armature, flat, ind / drive.armature.inductance_closed, r_e)
+    p = params_from_loop(drive.armature, flat, factor, r_e)
+    t_out = np.ravel(np.broadcast_to(np.asarray(peak_time, float), shape))
+    # the runs depend on the point's loop, tolerances and time-out, not on the main supply
+    # (the boost drives the peak, boosted_params replaces v_on): each distinct point runs once
+    rows = np.stack([getattr(p, n) for n in p.arrays if n != "v_on"] + [factor, flat.r_coil, t_out], axis=1)
+    _, first, back = np.unique(rows, axis=0, return_index=True, return_inverse=True)
+    p, r_coil, t_out = p.take(first), flat.r_coil[first], t_out[first]
     i_trip = threshold(drive)[2]
     dt = conversion_period(drive)
-    t_out = np.ravel(np.broadcast_to(np.asarray(peak_time, float), shape))
     heat = np.zeros(len(p))
     for high in (False, True):
         pb = boosted_params(drive, p, high)
         pin = pull_in(pb, trip=i_trip)
-        _, i_end, _, _ = _end(drive, pb, pin, i_trip)
         hit = np.isfinite(pin.trip_time)
         y = np.where(hit, pin.trip_state, 0.0)
-        sq = np.where(hit, y[4] + i_end**2 * dt, i_trip**2 * t_out)
-        total = flat.r_coil * sq
+        if curves:   # the conversion flown exactly (no closed-form rise bounds a saturating coil's)
+            sq = np.where(hit, curve_window(pb, pin, dt)[2][4], i_trip**2 * t_out)
+        else:
+            _, i_end, _, _ = _end(drive, pb, pin, i_trip)
+            sq = np.where(hit, y[4] + i_end**2 * dt, i_trip**2 * t_out)
+        total = r_coil * sq
         if eddy:
             total = total + np.where(hit, _core_loss(pb, y) + _branch_bound(pb, r_e, rise_current(
                 dt, pb.current(y[0], y[1]), pb.v_on, pb.r_on, pb.coil_open)) ** 2 * dt / r_e,
                 _branch_bound(pb, r_e, (pb.r_on + r_e) * i_trip / r_e) ** 2 * t_out / r_e)
         heat = np.maximum(heat, total)
-    return heat.reshape(shape)
+    return heat[np.ravel(back)].reshape(shape)
 
 
 def _core_loss(pb: ArmatureParams, y) -> np.ndarray:

@@ -413,10 +413,12 @@ def in_flight_refused(drive: Drive) -> str | None:
     """Why a current-mode hold after a boosted peak cannot carry an armature still in
     flight at the threshold (the comparator's flight,
     :func:`~coildrive.design.boost_armature.threshold_pull_in`, is a linear coil's, an eddy
-    term's too; on a drooping main supply neither with an eddy term, whose terminal
+    term's too -- not over flux-linkage curves; on a drooping main supply neither with an eddy term, whose terminal
     current's steps the bus floor's top does not take, nor with a bouncing seat, whose
     rebound's motional term would lift the current past it in the comparator's delay), in
     words; ``None`` where it can."""
+    if drive.coil.flux_current:
+        return "the armature's open and seated flux-linkage curves"
     if drive.coil.eddy_resistance and drive.supply.droops:
         return "an eddy-current term on a drooping main supply"
     if drive.supply.droops and drive.armature.restitution > 0:
@@ -543,10 +545,12 @@ def design(drive: Drive, samples: int = 0, seed: int = 1) -> Design:
                                     grid.l_factor, 0.0, heat_peak=peak_time)
         if drive.supply.boosted and first.armature is not None and (why := in_flight_refused(drive)):
             from .boost_armature import require_seated_in_peak
+            # (over the open and seated curves the closed loop is not modelled: config)
             require_seated_in_peak(drive, grid.label, first.armature.pull_in, "hold.mode",
                                    f"a current-mode hold with {why}", "its comparator's flight with "
-                                   "the armature moving takes neither on a drooping bus",
-                                   "a voltage-mode hold (or the closed loop, which carries it)")
+                                   "the armature moving is a linear coil's, an eddy term's on a stiff bus",
+                                   "a voltage-mode hold" + ("" if drive.coil.flux_current else
+                                                            " (or the closed loop, which carries it)"))
         pk = plan_peak(drive, grid, first)
         # the longest real peak: the ticks and the driver's switch lead
         longer = 0.0 if pk.ticks is None else pk.ticks / board.tick.rate + switch_lag(drive)[1]
