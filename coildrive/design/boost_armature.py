@@ -212,7 +212,9 @@ def hand_over_draw(drive: Drive, p: ArmatureParams, end_current, first_duty, per
     under it or the hold's top (the still coil's argument,
     :func:`coildrive.design.supply.handover_bus`); while the armature is in flight that is
     taken, not proven (the runs carry the bus itself then; only the converter's constant
-    draw rests on it)."""
+    draw rests on it; checked against solve_ivp in tests/test_boost_armature_droop_floor.py:
+    the first on-time after the hand-over is the flight's highest, later ones fall as the
+    gap closes)."""
     if drive.hold.mode != "voltage":
         return np.asarray(end_current, float)
     from .supply import first_on_top

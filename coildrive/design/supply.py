@@ -160,7 +160,15 @@ def armature_bus(runs) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     on a drooping main supply under a voltage-mode PWM hold): the lower of the pull-in
     run's and the most-current run's (each through its flight on the bus, then the seated
     coil's PWM until its orbit repeats, :func:`coildrive.model.armature_boost.with_orbit`;
-    ``settled`` False where a run's had not)."""
+    ``settled`` False where a run's had not). Where it had not, :func:`handover_bus` takes
+    the floor of the hand-over current and the hold's top under it: a bound of the bus after
+    the run (:func:`~coildrive.model.supply.bus_floor` holds from any moment on, the bus then
+    at or above the run's lowest), where the seated coil's on-time tops lie under the stiff
+    bus's from the same start, moving monotonically onto the orbit -- what is left over the
+    hold's top is at most its ripple, which the floor's slack (the top drawn without a
+    break, from ``V_s``) has covered in every drive measured -- an argument and a measurement,
+    not a proof; the first on-time from the seat current lies inside the run (checked against
+    solve_ivp: tests/test_boost_armature_droop_floor.py)."""
     from ..model.armature_boost import with_orbit
 
     a, b = (with_orbit(runs.hold_params, r, runs.duty, runs.period) for r in (runs.slow, runs.most))
