@@ -227,14 +227,16 @@ def _reachable(pb, pin, open_top=None) -> np.ndarray:
     those are the magnetising current's, taken with the capacitor at its seat (or full) as
     an upper bound of the terminal current's (the capacitor only falls while the current
     flows); the hump is the terminal current's already. Over the open and seated curves
-    (``pb.curves``) the seated coil is flown on from the seat (``pin.seated_top``, the run's
-    own flight to the trip that never comes), and ``open_top`` (A per point) is the open
-    curve's highest from the capacitor (:func:`_open_top`)."""
+    (``pb.curves``) from the boost capacitor the seated coil is flown on from the seat
+    (``pin.seated_top``, the run's own flight to the trip that never comes), and ``open_top``
+    (A per point) is the open curve's highest from the capacitor (:func:`_open_top`); from
+    an ideal boost, as a linear coil's (a curve's rise on a stiff source climbs to ``V_b /
+    R`` without overshoot)."""
     from ..model import supply as bus_model
     from ..model.armature import SEATED
 
     seated = pin.status == SEATED
-    if pb.curves is not None:   # no closed form: the seated coil flown on from the seat
+    if pb.curves is not None and pb.droops:   # no closed form: the seated coil flown on from the seat
         return np.where(seated, np.fmax(pin.hump_current, pin.seated_top), open_top)
     if pb.droops:
         open_top = bus_model.top_current(pb.bus(True))
