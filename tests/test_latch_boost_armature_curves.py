@@ -30,6 +30,10 @@ R_sense) i + V_d)`` down the seated curve to zero (an event). Checked within 1e-
 the fastest and the longest pulse, the capacitor at its end, the highest end current, the
 energy from the boost ``C_b (V_b^2 - u^2) / 2``, the copper's and the freewheel diode's;
 simulate's set pulse at 9 V, 20 degC; the compiled driver in the loop -> check (plumbing).
+The same from an ideal boost (``u`` held at ``V_b``), and with 800 ohm across the set
+winding's magnetising branch from either (the reference's ``R_e``: :func:`curve_reference`);
+a threshold the terminal current crests over inside one integrator step trips the run when
+solve_ivp's event does.
 """
 
 from __future__ import annotations
@@ -142,6 +146,8 @@ def curve_reference(drive, corner: str, high: bool | None, trip: float, late: fl
     runs = [solve_ivp(rhs(False), (0.0, t_end), y0, events=[start, at_trip], **opts)]
     assert runs[-1].t_events[0].size and not runs[-1].t_events[1].size, "precondition: the plunger starts first"
     runs.append(solve_ivp(rhs(True), (runs[-1].t[-1], t_end), runs[-1].y[:, -1], events=[seat, at_trip], **opts))
+    if runs[-1].t_events[1].size:   # the threshold in flight: when, and the gap then
+        return {"in_flight": float(runs[-1].t[-1]), "gap": float(runs[-1].y[1, -1])}
     assert runs[-1].t_events[0].size, "precondition: seated before the threshold"
     out = {"seat": float(runs[-1].t[-1])}
     y = runs[-1].y[:, -1].copy()
@@ -267,10 +273,63 @@ def test_from_an_ideal_boost_against_solve_ivp(ideal, tmp_path):
     device_checks(d, tmp_path)   # emulate -> check (plumbing)
 
 
-def test_an_eddy_term_is_refused_in_one_line(valve, tmp_path):
-    text = valve[0].read_text()
-    bad = tmp_path / "eddy.toml"
-    bad.write_text(text.replace("reference_temp = \"20 degC\"\n", 'reference_temp = "20 degC"\neddy_resistance = "800 ohm"\n', 1))
-    r = run_cli("design", str(bad))
+def eddy_valve(valve_path, tmp_path, ideal: bool, margin: float = 1.95):
+    """The valve on curves with 800 ohm across its set winding (``ideal``: no boost
+    capacitance), its set threshold ``margin`` x 0.8 A (+ 42 V / 800 ohm)."""
+    text = valve_path.read_text()
+    for old, new in (("reference_temp = \"20 degC\"\n", 'reference_temp = "20 degC"\neddy_resistance = "800 ohm"\n'),
+                     ("current_margin = 2           # its threshold", f"current_margin = {margin:g}  # its threshold"),
+                     ('boost_capacitance = "220 uF"', 'boost_capacitance = "220 uF"' if not ideal else
+                      "boost_capacitance = 0")):
+        assert old in text, old
+        text = text.replace(old, new, 1)
+    path = tmp_path / f"eddy-{'ideal' if ideal else 'capacitor'}-{margin:g}.toml"
+    path.write_text(text)
+    drive = load_drive(path)
+    assert drive.coil.eddy_resistance == 800.0 and not drive.latch.reset_coil.eddy_resistance
+    return path, drive
+
+
+@pytest.mark.parametrize("ideal", [False, True], ids=["capacitor", "ideal"])
+def test_with_an_eddy_term_against_solve_ivp(valve, tmp_path, monkeypatch, ideal):
+    """800 ohm across the set winding's magnetising branch, the threshold on the terminal
+    current: the set pulse against solve_ivp with the branch written afresh (the module's
+    reference, ``R_e``) within 1e-5 (the armature's share 1e-4), the eddy resistance's
+    energy computed on its own (on, freewheeling, the flux's tail); from the capacitor
+    ``simulate``'s set pulse and emulate -> check, from an ideal boost the compiled driver
+    in the loop -> check (plumbing)."""
+    path, drive = eddy_valve(valve[0], tmp_path, ideal)
+    d = design_latch(drive)
+    p, _ = set_pulse_against_reference(drive, d, curve_reference)
+    assert p.eddy_j > 0.02 * p.supply_j and p.armature_j > 0.02 * p.supply_j
+    if ideal:
+        driver_in_the_loop(path, d, tmp_path, monkeypatch)
+    else:
+        simulated_set_pulse(path, drive, d, p.boost.threshold_code, tmp_path, ref=curve_reference)
+        device_checks(d, tmp_path)
+
+
+def test_a_crest_over_the_threshold_inside_a_step_trips(valve, tmp_path):
+    """At 1.9 x 0.8 A from an ideal boost, the fastest corner (9 V, -30 degC, R-7%, L-15%,
+    the boost at its highest), the terminal current's hump in flight rises 0.15 % over the
+    threshold and falls back inside one of the integrator's steps: the run trips there (the
+    step's cubic's crest), when solve_ivp's event does, within 1e-5, and the design is
+    refused in one line (the plunger in flight when the pulse would end)."""
+    from coildrive.design.boost_armature import boosted_params
+    from coildrive.model.armature import TRIPPED, params_from_loop
+    from coildrive.model.armature_runs import pull_in
+    from coildrive.model.circuit import loop
+
+    path, drive = eddy_valve(valve[0], tmp_path, True, margin=1.9)
+    trip = 1.9 * 0.8 + drive.supply.boost * (1 + drive.supply.boost_tolerance) / 800.0
+    corner = "9 V, coil -30 degC, R-7%, L-15%"
+    ref = curve_reference(drive, corner, True, trip, 0.0)   # scipy solve_ivp
+    assert "in_flight" in ref and ref["gap"] > 0.0
+    _, temp, rf, lf = _corner(corner)
+    pb = boosted_params(drive, params_from_loop(drive.armature, loop(drive, 9.0, temp, rf, lf), lf, 800.0), True)
+    pin = pull_in(pb, trip=trip)
+    assert pin.status[0] == TRIPPED and pin.trip_time[0] == pytest.approx(ref["in_flight"], rel=1e-5)
+    assert pin.trip_state[1, 0] == pytest.approx(ref["gap"], rel=1e-4)
+    r = run_cli("design", str(path))
     assert r.returncode == 2 and len(r.stderr.strip().splitlines()) == 1, r.stderr
-    assert "coil.eddy_resistance" in r.stderr and "Traceback" not in r.stderr
+    assert "pull_in.current_margin" in r.stderr and "in flight" in r.stderr and "Traceback" not in r.stderr

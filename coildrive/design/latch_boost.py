@@ -85,8 +85,10 @@ carries the eddy resistance's loss as a state of its own
 loss follows from the run's own integrals (the branch sees ``V_b - R i_t``:
 :func:`coildrive.model.armature_boost.run_eddy_loss`), so ``E_eddy`` is computed, that plus
 the release's, and the remainder stays the mechanical work. Over the set winding's open and
-seated flux-linkage curves (from a boost capacitor, no eddy term) the run is the curves'
-(``pull_in`` with the trip, its resting stretches flown), the tick after the threshold the
+seated flux-linkage curves (from a boost capacitor or an ideal boost, an eddy term too) the
+run is the curves' (``pull_in`` with the trip, its resting stretches flown from the capacitor,
+the curves' closed-form rise from an ideal boost; with an eddy term the loss carried as a
+state from the capacitor, as above from an ideal boost), the tick after the threshold the
 seated curve held on the seat and flown (:func:`coildrive.model.armature_boost.seated_on`),
 the decay and ``int i dpsi`` the seated curve's (the winding's loop takes it). On a drooping main
 supply the converter's draw after the set pulse is the run's energy (:func:`main_bus`).
