@@ -42,6 +42,8 @@ from .armature import BOUND, OPEN, RUNNING, SEAT, START, TRIP, ZERO, ArmaturePar
 MAX_STEPS = 20_000
 #: A boosted peak's threshold on a coil with curves found past this fraction of a step: the
 #: step is redone short of it (:func:`fly`), so the event lands in a step this much shorter
+#: (any coil: a crest over the threshold that only the step's cubic finds, past this
+#: fraction, is stepped to and the integrated current decides)
 TRIP_REDO = 0.01
 
 # Dormand-Prince 5(4) coefficients (Dormand & Prince 1980; the tableau of scipy's RK45).
@@ -547,6 +549,15 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
             # threshold well inside a step is stepped to again, so it falls in a short one
             redo = hit & (kind == TRIP) & (theta > TRIP_REDO)
             ok, hit = ok & ~redo, hit & ~redo
+        crest_redo = None
+        if th_crest is not None:
+            # a crest found by the step's cubic alone (its ends below the threshold): the cubic
+            # of a long step can overshoot the true crest, so the step is redone to end at the
+            # cubic's crest -- there the integrated current decides (a short step's cubic then)
+            crest_redo = hit & (kind == TRIP) & (th_crest < 1.0) & (th_crest > TRIP_REDO)
+            ok, hit = ok & ~crest_redo, hit & ~crest_redo
+            if redo is not None:
+                redo = redo & ~crest_redo
         t_new = t + theta * h
         if query is not None:
             qmask = ok & (t < query) & (query <= t_new)
@@ -588,6 +599,8 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
         h = np.where(active, h * fac, h)
         if redo is not None:
             h = np.where(redo, 0.999 * theta * h / fac, h)
+        if crest_redo is not None:
+            h = np.where(crest_redo, th_crest * h / fac, h)
         tiny = active & (h < 1e-12 * np.maximum(np.abs(t_end), 1e-9))
         end = np.where(tiny, BOUND, end)
         active = active & ~tiny
