@@ -1457,20 +1457,17 @@ def _boosted_latch_refusal(coil: Coil, switch: Switch, supply: Supply, armature:
     run's own integrals: :func:`coildrive.model.armature_boost.run_eddy_loss`) and on the
     reset winding (a still coil's pulse, the catch tripping where its magnetising current
     reaches ``reset.current``); or the set winding's open and seated flux-linkage curves from
-    a boost capacitor without an eddy term (the seat run over the curves:
-    :func:`coildrive.model.armature_runs.pull_in` with a trip; the tick after the threshold
-    the seated curve held on the seat, :func:`coildrive.model.armature_boost.seated_on`)."""
+    a boost capacitor or an ideal boost (the seat run over the curves:
+    :func:`coildrive.model.armature_runs.pull_in` with a trip, the capacitor a state or an
+    ideal boost a stiff source whose resting stretches are the curves' closed-form rise; the
+    tick after the threshold the seated curve held on the seat,
+    :func:`coildrive.model.armature_boost.seated_on`), an eddy term on the set winding too
+    (the threshold on the terminal current; from the capacitor the eddy loss a state of the
+    flights, ``pull_in``'s ``eddy_loss``; from an ideal boost it follows from the run's own
+    integrals)."""
     if switch.topology == "full_bridge" and not supply.boost_capacitance > 0:
         return "supply.boost_capacitance", ("a latching coil on a full bridge from an ideal boost (each fast "
                                             "decay returns into the boost capacitor: give its capacitance)")
-    if armature is not None and coil.flux_current and not supply.boost_capacitance > 0:
-        return "supply.boost_capacitance", ("a latching coil with a moving armature over its open and seated "
-                                            "flux-linkage curves from an ideal boost (the set pulse's seat run over "
-                                            "the curves is a boost capacitor's: give its capacitance)")
-    if armature is not None and coil.flux_current and coil.eddy_resistance:
-        return "coil.eddy_resistance", ("a latching coil with a moving armature over its open and seated "
-                                        "flux-linkage curves and an eddy-current term (the curves' seat run from "
-                                        "the boost: without one; a linear coil takes one)")
     if latch is not None and latch.reset_settle_time > 0:
         return "reset.settle_time", ("a reset settle time (each pulse from the boost ends at its current "
                                      "threshold, not at a time after it)")
@@ -1619,7 +1616,7 @@ def _check_boost(source: str, fw_origins: dict, coil: Coil, switch: Switch, free
                          "full bridge with a boost capacitor; a stiff or a "
                          "drooping main supply, no reset settle_time; with [armature] a "
                          "linear coil (an eddy term on either winding too) or its open and seated curves from a boost "
-                         "capacitor (no eddy term), seated by the set pulse's threshold")
+                         "capacitor or an ideal boost (an eddy term too), seated by the set pulse's threshold")
 
 
 def _check_bridge(source: str, fw_origins: dict, switch: Switch, freewheel: Freewheel,

@@ -139,8 +139,10 @@ def test_bounces_into_the_hold_match_scipy_on_the_equations_written_afresh():
 
 
 def test_the_conversion_after_a_threshold_between_bounces_against_scipy():
-    """A threshold at the current's hump before the first impact comes between two later
-    bounces: the conversion after it (one 20 kHz period) is flown, bounces and all, until the
+    """A threshold 0.1 % over the current's hump before the first impact comes between two
+    later bounces (at the hump itself it does not: the hump the run keeps at its accepted
+    steps lies 2.3e-4 under the crest solve_ivp's dense output gives, and the crest crosses
+    it; the run's threshold event finds such a crest inside a step): the conversion after it (one 20 kHz period) is flown, bounces and all, until the
     armature rests on the seat -- the moment and the most current over the flight within
     1e-6 of solve_ivp's -- and from the rest on the open coil's rise bounds the current: the
     two together at or above solve_ivp's most current over the whole conversion."""
@@ -148,7 +150,7 @@ def test_the_conversion_after_a_threshold_between_bounces_against_scipy():
 
     p = _params()
     pb = boost_params(p, *BOOST)
-    trip = float(pull_in(pb).hump_current[0])
+    trip = float(pull_in(pb).hump_current[0]) * 1.001
     pin = pull_in(pb, trip=trip, rtol=1e-10)
     assert pin.status[0] == TRIPPED and pin.trip_state[1, 0] < 0.02 * POINT["stroke"]   # among the bounces
     flown, top, t_rest, y = window_flight(pb, pin, PERIOD, rtol=1e-10)

@@ -85,8 +85,10 @@ carries the eddy resistance's loss as a state of its own
 loss follows from the run's own integrals (the branch sees ``V_b - R i_t``:
 :func:`coildrive.model.armature_boost.run_eddy_loss`), so ``E_eddy`` is computed, that plus
 the release's, and the remainder stays the mechanical work. Over the set winding's open and
-seated flux-linkage curves (from a boost capacitor, no eddy term) the run is the curves'
-(``pull_in`` with the trip, its resting stretches flown), the tick after the threshold the
+seated flux-linkage curves (from a boost capacitor or an ideal boost, an eddy term too) the
+run is the curves' (``pull_in`` with the trip, its resting stretches flown from the capacitor,
+the curves' closed-form rise from an ideal boost; with an eddy term the loss carried as a
+state from the capacitor, as above from an ideal boost), the tick after the threshold the
 seated curve held on the seat and flown (:func:`coildrive.model.armature_boost.seated_on`),
 the decay and ``int i dpsi`` the seated curve's (the winding's loop takes it). On a drooping main
 supply the converter's draw after the set pulse is the run's energy (:func:`main_bus`).
@@ -227,14 +229,16 @@ def _reachable(pb, pin, open_top=None) -> np.ndarray:
     those are the magnetising current's, taken with the capacitor at its seat (or full) as
     an upper bound of the terminal current's (the capacitor only falls while the current
     flows); the hump is the terminal current's already. Over the open and seated curves
-    (``pb.curves``) the seated coil is flown on from the seat (``pin.seated_top``, the run's
-    own flight to the trip that never comes), and ``open_top`` (A per point) is the open
-    curve's highest from the capacitor (:func:`_open_top`)."""
+    (``pb.curves``) from the boost capacitor the seated coil is flown on from the seat
+    (``pin.seated_top``, the run's own flight to the trip that never comes), and ``open_top``
+    (A per point) is the open curve's highest from the capacitor (:func:`_open_top`); from
+    an ideal boost, as a linear coil's (a curve's rise on a stiff source climbs to ``V_b /
+    R`` without overshoot)."""
     from ..model import supply as bus_model
     from ..model.armature import SEATED
 
     seated = pin.status == SEATED
-    if pb.curves is not None:   # no closed form: the seated coil flown on from the seat
+    if pb.curves is not None and pb.droops:   # no closed form: the seated coil flown on from the seat
         return np.where(seated, np.fmax(pin.hump_current, pin.seated_top), open_top)
     if pb.droops:
         open_top = bus_model.top_current(pb.bus(True))

@@ -739,8 +739,9 @@ def seated_on(p: ArmatureParams, y, dt) -> np.ndarray:
     ``eddy_loss``, accumulates :func:`~coildrive.model.supply.eddy_loss_from`): a latching
     coil's set pulse from the boost, seated at its threshold, on for the tick until the
     driver sees it (:mod:`coildrive.design.latch_boost`). Over the open and seated curves
-    (``p.curves``: a boost capacitor, no eddy term) there is no closed form: the seated coil
-    held on the seat is flown for ``dt`` s (:func:`_held_on_seat`)."""
+    (``p.curves``: a boost capacitor or an ideal boost; an eddy term's loss row too) there is
+    no closed form: the seated coil held on the seat is flown for ``dt`` s
+    (:func:`_held_on_seat`)."""
     from .rl import rise_current, rise_integrals
 
     y = np.asarray(y, float)

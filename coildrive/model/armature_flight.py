@@ -42,6 +42,8 @@ from .armature import BOUND, OPEN, RUNNING, SEAT, START, TRIP, ZERO, ArmaturePar
 MAX_STEPS = 20_000
 #: A boosted peak's threshold on a coil with curves found past this fraction of a step: the
 #: step is redone short of it (:func:`fly`), so the event lands in a step this much shorter
+#: (any coil: a crest over the threshold that only the step's cubic finds, past this
+#: fraction, is stepped to and the integrated current decides)
 TRIP_REDO = 0.01
 
 # Dormand-Prince 5(4) coefficients (Dormand & Prince 1980; the tableau of scipy's RK45).
@@ -297,15 +299,16 @@ def _hermite(y0, y1, d0, d1, h, theta):
             + (-2 * t3 + 3 * t2) * y1 + (t3 - t2) * h * d1)
 
 
-def _root(g0, g1, d0, d1, h, iterations: int = 40):
+def _root(g0, g1, d0, d1, h, iterations: int = 40, upper=None):
     """Fraction of the step where the Hermite interpolant of ``g`` reaches 0 from above.
 
     ``g0 >= 0 > g1``: ``g`` is the distance to a stop (or the flux linkage), so a step
     that starts on the stop (``g0 = 0``, leaving it) looks for the return, not the start.
-    Bisection on the cubic.
+    Bisection on the cubic, over ``[0, upper]`` (a fraction per point, 1 unless given: a
+    dip below 0 inside the step whose end is above it again, :func:`_turn`).
     """
     lo = np.zeros_like(g0)
-    hi = np.ones_like(g0)
+    hi = np.ones_like(g0) if upper is None else np.array(upper, float)
     for _ in range(iterations):
         mid = 0.5 * (lo + hi)
         same = _hermite(g0, g1, d0, d1, h, mid) > 0.0
@@ -422,7 +425,9 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
     current_to : A per point (``inf``: none): a flight (free or ``held``) ends (code TRIP)
     where the coil's current (with an eddy term the terminal current) rises to it -- a
     boosted peak's threshold; with ``trip_down`` (bool per point) True, where it *falls* to
-    it instead (a current-mode hold's lower threshold, the switch off)
+    it instead (a current-mode hold's lower threshold, the switch off); either way also
+    where it crosses it and turns back inside one step (the step's Hermite cubic's turn,
+    :func:`_turn`: the step's ends alone would miss it)
     flux_down : Wb per point: where ``held``, the resting stretch ends (code START) where
     the flux linkage falls to it instead (the seated coil's decay to the stay current)
     returns : V per point, a full bridge's two body diodes ``2 V_d``: switched off, the
@@ -497,12 +502,23 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
         if floor is not None:
             start = ok & ~free & (y_new[0] <= floor)
         trip = np.zeros(n, bool)
+        th_crest = None
         if trip_at is not None:   # (with an eddy term the terminal current: what the sense sees)
             rate = rhs.current_rate if rhs.t1 is None else rhs.terminal_rate
             c_old, dc_old = rate(y, k1)
             c_new, dc_new = rate(y_new, k7)
-            # (held too: a resting stretch's threshold)
-            trip = ok & (sign * (c_new - trip_at) >= 0.0)
+            # (held too: a resting stretch's threshold; ``sign`` -1: a falling one)
+            g = (sign * (trip_at - c_old), sign * (trip_at - c_new), -sign * dc_old, -sign * dc_new)
+            trip = ok & (g[1] <= 0.0)
+            # a crest inside the step that crosses the threshold and turns back before the
+            # step's end (the ends alone miss it): the step's cubic's turn
+            crest = ok & ~trip & (g[2] < 0.0) & (g[3] > 0.0)
+            th_crest = np.ones(n)
+            if crest.any():
+                th = np.where(crest, _turn(*g, h), 1.0)
+                over = crest & (_hermite(*g, h, th) < 0.0)
+                trip = trip | over
+                th_crest = np.where(over, th, 1.0)
         if rhs.t1 is None:
             zero = ok & ~on & live & (y_new[0] < 0.0)
         else:   # an eddy term: the freewheel stops where the terminal current reaches zero
@@ -524,8 +540,8 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
                     (trip, *((sign * (trip_at - c_old), sign * (trip_at - c_new), -sign * dc_old, -sign * dc_new)
                              if trip_at is not None
                              else (y[0],) * 4), TRIP)):
-                if mask.any():
-                    th = np.where(mask, _root(g0, g1, d0, d1, h), 1.0)
+                if mask.any():   # (a crest's crossing: on its rising side)
+                    th = np.where(mask, _root(g0, g1, d0, d1, h, upper=th_crest if code == TRIP else None), 1.0)
                     first = mask & (th < theta)
                     theta = np.where(first, th, theta)
                     kind = np.where(first, code, kind)
@@ -540,6 +556,15 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
             # threshold well inside a step is stepped to again, so it falls in a short one
             redo = hit & (kind == TRIP) & (theta > TRIP_REDO)
             ok, hit = ok & ~redo, hit & ~redo
+        crest_redo = None
+        if th_crest is not None:
+            # a crest found by the step's cubic alone (its ends below the threshold): the cubic
+            # of a long step can overshoot the true crest, so the step is redone to end at the
+            # cubic's crest -- there the integrated current decides (a short step's cubic then)
+            crest_redo = hit & (kind == TRIP) & (th_crest < 1.0) & (th_crest > TRIP_REDO)
+            ok, hit = ok & ~crest_redo, hit & ~crest_redo
+            if redo is not None:
+                redo = redo & ~crest_redo
         t_new = t + theta * h
         if query is not None:
             qmask = ok & (t < query) & (query <= t_new)
@@ -581,6 +606,8 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
         h = np.where(active, h * fac, h)
         if redo is not None:
             h = np.where(redo, 0.999 * theta * h / fac, h)
+        if crest_redo is not None:
+            h = np.where(crest_redo, th_crest * h / fac, h)
         tiny = active & (h < 1e-12 * np.maximum(np.abs(t_end), 1e-9))
         end = np.where(tiny, BOUND, end)
         active = active & ~tiny
@@ -602,17 +629,23 @@ def _track_low(low, until, ok, t, y, y_full, y_new, k1, k7, h, theta) -> None:
     turn = ok & (k1[5] < 0.0) & (k7[5] > 0.0)
     if not turn.any():
         return
-    lo, hi = np.zeros_like(t), np.ones_like(t)
-    for _ in range(50):
-        mid = 0.5 * (lo + hi)
-        falling = _hermite_slope(y[5], y_full[5], k1[5], k7[5], h, mid) < 0.0
-        lo, hi = np.where(falling, mid, lo), np.where(falling, hi, mid)
-    th = 0.5 * (lo + hi)
+    th = _turn(y[5], y_full[5], k1[5], k7[5], h)
     inside = turn & (th <= theta) & (t + th * h <= until)
     u_min = _hermite(y[5], y_full[5], k1[5], k7[5], h, th)
     up = inside & (u_min < low[0])
     low[0] = np.where(up, u_min, low[0])
     low[1] = np.where(up, t + th * h, low[1])
+
+
+def _turn(y0, y1, d0, d1, h, iterations: int = 50):
+    """Fraction of the step where the cubic Hermite interpolant's slope, negative at its
+    start and positive at its end (``d0 < 0 < d1``), turns: its minimum (bisected)."""
+    lo, hi = np.zeros_like(h), np.ones_like(h)
+    for _ in range(iterations):
+        mid = 0.5 * (lo + hi)
+        falling = _hermite_slope(y0, y1, d0, d1, h, mid) < 0.0
+        lo, hi = np.where(falling, mid, lo), np.where(falling, hi, mid)
+    return 0.5 * (lo + hi)
 
 
 def _hermite_slope(y0, y1, d0, d1, h, theta):

@@ -141,17 +141,18 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
     (:class:`~coildrive.model.flux.FluxCoil` through :func:`_rise_to`; with an eddy term the
     branch's behind the loop's Thevenin pair), as a linear coil's.
 
-    ``eddy_loss`` (an eddy term on a drooping bus or a boost capacitor, a linear coil): the
-    run carries a seventh state, the eddy resistance's loss ``R_e int (i_m - i_t)^2 dt`` J
+    ``eddy_loss`` (an eddy term on a drooping bus or a boost capacitor): the run carries a
+    seventh state, the eddy resistance's loss ``R_e int (i_m - i_t)^2 dt`` J
     (``trip_state``'s last row): the flight integrates it
-    (:class:`~coildrive.model.armature_flight._Rhs`), the resting stretches add
-    :func:`coildrive.model.supply.eddy_loss_from` of their closed form.
+    (:class:`~coildrive.model.armature_flight._Rhs`), a linear coil's resting stretches add
+    :func:`coildrive.model.supply.eddy_loss_from` of their closed form (a coil with curves:
+    flown, the flights integrate it there too).
     """
     n = len(p)
     droop = p.droops
     curved = droop and p.curves is not None
-    if eddy_loss and (p.eddy is None or not droop or curved):
-        raise ValueError("eddy_loss: an eddy term on a drooping bus or a boost capacitor, a linear coil")
+    if eddy_loss and (p.eddy is None or not droop):
+        raise ValueError("eddy_loss: an eddy term on a drooping bus or a boost capacitor")
     i_start = p.start_current
     l_open = p.coil_open
     want = None if peak_time is None else np.broadcast_to(np.asarray(peak_time, float), (n,)).copy()
@@ -177,7 +178,8 @@ def pull_in(p: ArmatureParams, peak_time=None, rtol: float = 1e-7, max_rounds: i
                 lam_to = np.minimum(lam_to, lam_trip)
         t_start, q0, s0, u_start, st, y_held, code = _held_rise(
             p, i_inf, stiff, rtol, want, query_y, low, low_until, lam_to,
-            trip if trip is not None and p.eddy is not None else None)
+            trip if trip is not None and p.eddy is not None else None, eddy_loss)
+        loss0 = np.where(np.isfinite(t_start), y_held[6], 0.0) if eddy_loss else None
         steps += st
         if trip is not None:
             if p.eddy is not None:   # (the terminal current depends on the bus too: an event)
@@ -435,13 +437,17 @@ def _seated_trip_held(p: ArmatureParams, trip, seated, seat_time, seat_y, bound,
     y0[1], y0[2] = 0.0, 0.0
     end = t0 + np.where(np.isfinite(bound), bound, 0.0) + BOUND_FACTOR * bus_time_scale(p)
     ones = np.ones(n, bool)
-    peak = np.stack([p.current(y0[0], 0.0), t0])
+    # the highest: with an eddy term the terminal current (it depends on the capacitor too:
+    # the flight tracks it so)
+    current = ((lambda z: p.terminal(p.current(z[0], 0.0), True, bus=z[5])) if p.eddy is not None
+               else (lambda z: p.current(z[0], 0.0)))
+    peak = np.stack([current(y0), t0])
     # the stop: the seated flux of the trip current; with an eddy term the terminal current
     to = dict(flux_to=p.flux_closed(trip)) if p.eddy is None else dict(current_to=trip)
     fl = fly_mixed(p, t0, y0, end, seated, ones, ones, stiff, rtol, held=ones, track=seated.copy(), peak=peak,
                    **to)
     ok = seated & (fl.end == (START if p.eddy is None else TRIP))
-    top = np.where(seated, np.maximum(peak[0], p.current(fl.y[0], 0.0)), np.nan)
+    top = np.where(seated, np.maximum(peak[0], current(fl.y)), np.nan)
     return (np.where(ok, fl.t, trip_time), np.where(ok, fl.y, trip_y), np.where(seated, fl.steps, 0), top)
 
 
@@ -478,14 +484,15 @@ def _rise_to(p: ArmatureParams, open_: bool, trip, i0, u0, eddy_loss: bool = Fal
 
 
 def _held_rise(p: ArmatureParams, i_inf, stiff, rtol, want, query_y, low, low_until, flux_to=None,
-               current_to=None):
+               current_to=None, eddy_loss: bool = False):
     """A coil with curves on a drooping bus, switched on at t = 0 with the armature held on
     the open stop (the flight integrator, ``held``) until the flux reaches the start
     current's (or ``flux_to`` Wb), or (``current_to`` A, an eddy term's threshold on the
     terminal current) the terminal current reaches it first: ``(t s (inf: neither within the
     bound), int i dt A*s, int i^2 dt A^2*s, the bus V then, steps, the state then, the end's
     code: START or TRIP)``; the state at ``want`` s goes into ``query_y``, the lowest
-    bus into ``low``. The bound: :data:`BOUND_FACTOR` times the slower of the open coil's
+    bus into ``low``; ``eddy_loss``: the state's seventh row, the eddy resistance's loss
+    (:class:`~coildrive.model.armature_flight._Rhs` integrates it). The bound: :data:`BOUND_FACTOR` times the slower of the open coil's
     time constant (its small-signal or its secant inductance at the steady current
     ``i_inf`` A, over ``R_on + R_s``) and ``R_s C``."""
     n = len(p)
@@ -493,7 +500,7 @@ def _held_rise(p: ArmatureParams, i_inf, stiff, rtol, want, query_y, low, low_un
     tau = np.maximum(p.l_open, l_secant) / (p.r_on + p.source_resistance)
     bound = BOUND_FACTOR * (tau + bus_time_scale(p))   # (a boost capacitor: its loop's scale)
     y0 = np.stack([np.zeros(n), p.stroke.astype(float), np.zeros(n), np.zeros(n), np.zeros(n),
-                   p.v_on.astype(float)])
+                   p.v_on.astype(float)] + ([np.zeros(n)] if eddy_loss else []))
     ones = np.ones(n, bool)
     fl = fly_mixed(p, np.zeros(n), y0, bound, ones, ones, ones, stiff, rtol, query=want, query_y=query_y,
                    low=low, low_until=low_until, held=ones,
