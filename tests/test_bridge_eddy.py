@@ -224,7 +224,9 @@ def test_eddy_bridge_properties(b, r_e, capacitance, more):
     r = b["r_coil"] + b["r_sense"]
     small = bridge.pump_up(i0, b["supply"], capacitance, r, coil, b["v_diode"])
     large = bridge.pump_up(i0, b["supply"], capacitance * more, r, coil, b["v_diode"])
-    assert float(small.delta_v) >= 0.0 and np.isfinite(small.delta_v)
+    # (never below zero beyond rounding: a pump-up of a few nJ is a difference of squares
+    # near V1^2, -3.6e-15 V seen)
+    assert float(small.delta_v) >= -1e-12 and np.isfinite(small.delta_v)
     assert float(large.delta_v) <= float(small.delta_v) * (1 + 1e-9) + 1e-12
 
 

@@ -188,16 +188,6 @@ def test_a_two_winding_drive_without_its_reset_winding_is_refused(tmp_path):
     assert res.exit_code == 2 and "reset_coil" in res.stderr and "missing" in res.stderr
 
 
-@pytest.mark.parametrize("args", [["tune", "--port", "loop://"]])
-def test_commands_that_do_not_run_a_latch_say_so_in_one_line(tmp_path, args):
-    args = [a.replace("OUT", str(tmp_path / "drv")).replace("x.png", str(tmp_path / "x.png"))
-            .replace("w.csv", str(tmp_path / "w.csv")) for a in args]
-    res = CliRunner().invoke(app, [args[0], str(BRIDGE), *args[1:]])
-    assert res.exit_code == 2, res.stdout
-    assert len(res.stderr.strip().splitlines()) == 1, res.stderr
-    assert not (tmp_path / "x.png").exists() and not (tmp_path / "w.csv").exists()
-
-
 def test_design_plot_draws_both_pulses(tmp_path):
     out = tmp_path / "latch.png"
     res = CliRunner().invoke(app, ["design", str(RELAY), "--plot", str(out)])
@@ -241,20 +231,6 @@ def test_a_pulse_too_hot_for_the_coil_fails_and_writes_no_header(tmp_path):
     res = CliRunner().invoke(app, ["simulate", str(path), "--supply", "12", "--coil-temp", "20", "--csv",
                                    str(tmp_path / "w.csv")])
     assert res.exit_code == 2 and len(res.stderr.strip().splitlines()) == 1, res.stderr
-
-
-@pytest.mark.parametrize("path", [BRIDGE, RELAY], ids=["bridge", "reset-winding"])
-def test_the_bench_commands_refuse_a_latch_in_one_line(tmp_path, path):
-    """Live tuning (tune --port) steps a peak-and-hold drive's PWM: a latching coil is
-    refused with one line naming hold.mode (exit 2), never a traceback (the offline sweep
-    of its pulse lengths: tests/test_tune_latch.py; emulate and check run its pulses:
-    tests/test_latch_bench.py; firmware-driver writes its pulse driver:
-    tests/test_latch_driver.py)."""
-    assert load_drive(path).latch is not None, "the drive keeps its [reset] (config's Drive fields)"
-    for args in (["tune", str(path), "--port", "loop://"],):
-        res = CliRunner().invoke(app, args)
-        assert res.exit_code == 2 and "hold.mode" in res.stderr, (args, res.exit_code, res.stderr)
-        assert len(res.stderr.strip().splitlines()) == 1 and "Traceback" not in res.stderr, args
 
 
 BOLT = EXAMPLES / "latching" / "bolt-catch-reset-winding-12v.toml"

@@ -512,9 +512,10 @@ def fly(p: ArmatureParams, t: np.ndarray, y: np.ndarray, t_end: np.ndarray, acti
             trip = ok & (g[1] <= 0.0)
             # a crest inside the step that crosses the threshold and turns back before the
             # step's end (the ends alone miss it): the step's cubic's turn
-            crest = ok & ~trip & (g[2] < 0.0) & (g[3] > 0.0)
+            crest = ok & ~trip & np.isfinite(trip_at) & (g[2] < 0.0) & (g[3] > 0.0)
             th_crest = np.ones(n)
             if crest.any():
+                g = tuple(np.where(crest, x, 0.0) for x in g)   # (no threshold: inf, not read)
                 th = np.where(crest, _turn(*g, h), 1.0)
                 over = crest & (_hermite(*g, h, th) < 0.0)
                 trip = trip | over
