@@ -263,10 +263,6 @@ def _variant(tmp_path, name, old, new, board=None):
 
 
 REFUSALS = [
-    # (a full bridge designs a boosted peak: tests/test_boost_bridge.py; its own refusals hold:
-    # a mixed-decay hold under a current-mode one)
-    ("bridge-current-mixed", "[hold]", '[hold]\nmode = "current"\nband = "0.1 A"\nfast_fraction = 0.3',
-     "bridge-m32-fast", "hold.fast_fraction"),
     ("settle", "margin = 1.5", 'margin = 1.5\nsettle_time = "1 ms"', None, "pull_in.settle_time"),
     ("low-boost", 'boost = "48 V"', 'boost = "16.5 V"', None, "supply.boost"),
     ("no-power", 'boost_power = "5 W"', "", None, "supply.boost_power"),

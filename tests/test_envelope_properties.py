@@ -103,6 +103,11 @@ def test_hotter_coil_never_shortens_pull_in(name):
                        drive.hold.frequency, 0.2, mechanics=mechanics)
         assert list(res.coil_temp) == [t1, t2], "precondition: the coil sits at the ambient"
         lib_cold, lib_hot = map(float, res.pull_in_time)
+        if mechanics and drive.supply.boosted:
+            # not a law there: the boosted peak ends at a current threshold, which a hotter
+            # coil reaches later, so the boost pushes the moving armature longer and its seat
+            # may come sooner (0.08 % seen at 10 V); the corners take every coil temperature
+            return
         assert _later(lib_cold, lib_hot), f"{where}: evaluate's pull-in {lib_cold} s -> {lib_hot} s"
 
     check()

@@ -1230,7 +1230,7 @@ def design_system(system: System) -> SystemResult:
     designs = [design_latch(c.drive) if c.drive.latch is not None else design(c.drive) for c in channels]
     for c, d in zip(channels, designs):
         a = None if is_latch(d) else d.armature
-        if (d.boost is not None and d.hold.regulation == "current" and a is not None
+        if (a is not None and d.boost is not None and d.hold.regulation == "current"
                 and a.seated_in_peak_corners is not None and a.seated_in_peak_corners < a.corners):
             # (the rail's bound of a current-mode hold takes the seated coil's thresholds)
             raise InputError(c.drive.source, "hold.mode", f"channel {c.name!r} of {system.source}: a current-mode "
