@@ -59,6 +59,20 @@ def valve():
     return VALVE, drive, design_latch(drive)
 
 
+def boost_corner(drive, corner: str, high: bool | None) -> tuple:
+    """``(V_main, degC, R and L factors, R_coil, the boost loop's R, R_e (inf: none), V_b, C_b)``
+    at a corner's label and boost side (``high``: its tolerances' high end, low end, or
+    ``None`` nominal), written afresh: copper by IEC 60028 (0.00393 /K), the loop the coil,
+    the switch, the sense resistor and the boost path's resistance in series."""
+    v_main, temp, rf, lf = _corner(corner)
+    c, s, b = drive.coil, drive.supply, drive.board
+    r_coil = c.resistance * (1 + 0.00393 * (temp - c.reference_temp)) * rf   # copper, IEC 60028
+    r = r_coil + drive.switch.on_resistance + b.sense.resistance + s.boost_resistance
+    sign = 0.0 if high is None else (1.0 if high else -1.0)
+    return (v_main, temp, rf, lf, r_coil, r, c.eddy_resistance or math.inf, s.boost * (1 + sign * s.boost_tolerance),
+            s.boost_capacitance * (1 + sign * s.boost_capacitance_tolerance))
+
+
 def reference(drive, corner: str, high: bool | None, trip: float, late: float) -> dict:
     """solve_ivp of the module docstring's equations at the corner's label (the coil's
     temperature and tolerance factors; the main supply feeds nothing while the boost is on)
@@ -76,13 +90,8 @@ def reference(drive, corner: str, high: bool | None, trip: float, late: float) -
     dt``."""
     from scipy.integrate import solve_ivp
 
-    v_main, temp, rf, lf = _corner(corner)
+    v_main, temp, rf, lf, r_coil, r, r_e, v_b, c_b = boost_corner(drive, corner, high)
     c, a, s, b = drive.coil, drive.armature, drive.supply, drive.board
-    r_coil = c.resistance * (1 + 0.00393 * (temp - c.reference_temp)) * rf   # copper, IEC 60028
-    r = r_coil + drive.switch.on_resistance + b.sense.resistance + s.boost_resistance
-    r_e = c.eddy_resistance or math.inf
-    sign = 0.0 if high is None else (1.0 if high else -1.0)
-    v_b, c_b = s.boost * (1 + sign * s.boost_tolerance), s.boost_capacitance * (1 + sign * s.boost_capacitance_tolerance)
     ideal = not c_b > 0   # a stiff boost: u stays at V_b
     lc = a.inductance_closed * lf
     beta = (a.inductance_closed / a.inductance_open - 1) / a.stroke   # L(stroke) = the open inductance

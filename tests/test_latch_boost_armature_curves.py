@@ -46,8 +46,8 @@ from scipy.integrate import solve_ivp
 
 from conftest import EXAMPLES, run_cli
 from test_latch_armature_curves import Curve, _table
-from test_latch_boost_armature import (VALVE, device_checks, driver_in_the_loop, set_pulse_against_reference,
-                                      simulated_set_pulse)
+from test_latch_boost_armature import (VALVE, boost_corner, device_checks, driver_in_the_loop,
+                                      set_pulse_against_reference, simulated_set_pulse)
 from test_reference_ngspice_latch import _corner
 
 from coildrive.config import load_drive
@@ -94,13 +94,8 @@ def curve_reference(drive, corner: str, high: bool | None, trip: float, late: fl
     field energy ``W_c(psi)`` then, hand-worked), the branch sees ``v_m = u - R i_t``
     (``-(R_off i_t + V_d)``), the threshold, ``int i^2 dt`` and the energies take ``i_t``,
     ``R_e`` takes ``v_m^2 / R_e``."""
-    v_main, temp, rf, lf = _corner(corner)
+    v_main, temp, rf, lf, r_coil, r, r_e, v_b, c_b = boost_corner(drive, corner, high)
     c, a, s, b = drive.coil, drive.armature, drive.supply, drive.board
-    r_coil = c.resistance * (1 + 0.00393 * (temp - c.reference_temp)) * rf   # copper, IEC 60028
-    r = r_coil + drive.switch.on_resistance + b.sense.resistance + s.boost_resistance
-    r_e = c.eddy_resistance or math.inf
-    sign = 0.0 if high is None else (1.0 if high else -1.0)
-    v_b, c_b = s.boost * (1 + sign * s.boost_tolerance), s.boost_capacitance * (1 + sign * s.boost_capacitance_tolerance)
     ideal = not c_b > 0   # a stiff boost: u stays at V_b
     op, st = Curve(lf, **OPEN), Curve(lf, **SEATED)
     stroke = a.stroke
